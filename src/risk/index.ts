@@ -1,0 +1,2 @@
+/** Public exports of src/risk. */
+export {};
