@@ -28,8 +28,10 @@ export type PlanSlot = "activations" | "weights" | "gradients" | "optimizerState
  * - uniform: x ~ U[-a, a] with a = rms·sqrt(3)
  * - constant: every nonzero element has magnitude rms (a norm gain at initialisation, a bias constant)
  * - bounded: magnitudes spread up to `bound`, never above it (softmax probabilities, sigmoid outputs)
+ * - log-normal: log2|x| ~ N(m, elementLog2Spread²), with m set so the rms is `rms` (softmax probabilities and
+ *   cross-entropy logit gradients over many classes, whose elements span many binades)
  */
-export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded";
+export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal";
 
 /**
  * The predicted distribution of a tensor's element magnitudes (DESIGN.md: magnitude profile).
@@ -49,6 +51,8 @@ export interface MagnitudeProfile {
   log2Spread: number;
   /** for shape "bounded": the largest magnitude an element can take */
   bound?: number;
+  /** for shape "log-normal": the standard deviation of log2|x| across the elements of one draw */
+  elementLog2Spread?: number;
 }
 
 /** One factor of the chain-rule product that gives a tensor's scale (DESIGN.md: ledger). */
