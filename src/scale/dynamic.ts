@@ -1,0 +1,205 @@
+/**
+ * Dynamic loss scaling, simulated over a training horizon.
+ *
+ * The scheme is common practice (Micikevicius et al. 2018 describe only the static scale and leave a dynamic one
+ * to future work): start high; on a step whose scaled gradients overflow, skip the update and cut the scale;
+ * after a run of clean steps, raise it. SCIENCE.md §3.2 derives its equilibrium: the scale settles one raise
+ * factor below the overflow edge and about one step per run of clean steps is skipped.
+ */
+
+/** The knobs of a dynamic loss scale (our own names). */
+export interface DynamicScaleSettings {
+  /** the scale at the first step */
+  startingScale: number;
+  /** consecutive steps without overflow before the scale is raised */
+  cleanStepsBeforeRaise: number;
+  /** the scale is multiplied by this after a run of clean steps */
+  raiseFactor: number;
+  /** the scale is divided by this after a step that overflows */
+  cutFactor: number;
+  /** the scale never goes below this */
+  lowestScale: number;
+  /** the scale never goes above this */
+  highestScale: number;
+}
+
+/** Defaults: common practice (SCIENCE.md §3.2: factor 2, runs of about 1000–2000 clean steps, start 2^15–2^24). */
+export const DEFAULT_DYNAMIC_SCALE: DynamicScaleSettings = {
+  startingScale: 2 ** 16,
+  cleanStepsBeforeRaise: 2000,
+  raiseFactor: 2,
+  cutFactor: 2,
+  lowestScale: 1,
+  highestScale: 2 ** 24,
+};
+
+/**
+ * What the simulation needs to know of the network at a given scale and point of the horizon.
+ * `progress` runs from 0 (first step) to 1 (last step).
+ */
+export interface DynamicScaleModel {
+  /** probability that at least one scaled gradient overflows in one step */
+  overflowProbability(scale: number, progress: number): number;
+  /** whether the share of gradient energy flushed to zero exceeds the tolerance at this scale */
+  flushesTooMuch(scale: number, progress: number): boolean;
+}
+
+/** One point of the scale's trajectory (a change of scale, plus the first and last step). */
+export interface ScalePoint {
+  step: number;
+  scale: number;
+}
+
+export interface DynamicScaleResult {
+  settings: DynamicScaleSettings;
+  steps: number;
+  seed: number;
+  /** steps whose update was skipped because the scaled gradients overflowed */
+  skippedSteps: number;
+  /** the first skipped step, or -1 */
+  firstSkippedStep: number;
+  /** steps taken while the flushed gradient energy was above tolerance */
+  stepsFlushingTooMuch: number;
+  /** the scale's trajectory, thinned to at most `maxPoints` points for charts */
+  trajectory: ScalePoint[];
+  finalScale: number;
+  /** smallest and largest scale over the second half of the horizon (the settled band) */
+  settledLowest: number;
+  settledHighest: number;
+  /** skipped steps in the second half, per step of the second half */
+  settledSkipRate: number;
+}
+
+export interface DynamicScaleOptions {
+  steps: number;
+  seed: number;
+  settings?: Partial<DynamicScaleSettings>;
+  /** a uniform random source on [0, 1); seeded by the caller (default: a generator seeded with `seed`) */
+  random?: () => number;
+  /** the trajectory is thinned to this many points (default 400) */
+  maxPoints?: number;
+  /** the model is evaluated on this many points of the horizon and held constant between them (default 64) */
+  horizonPoints?: number;
+}
+
+/**
+ * Run dynamic loss scaling step by step with seeded random overflow events.
+ * @example simulateDynamicScale(model, { steps: 10000, seed: 1 }).skippedSteps // => e.g. 6
+ */
+export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicScaleOptions): DynamicScaleResult {
+  const settings = { ...DEFAULT_DYNAMIC_SCALE, ...options.settings };
+  validateSettings(settings);
+  const steps = options.steps;
+  if (!Number.isInteger(steps) || steps < 1) throw new RangeError(`steps must be a positive integer. Value: ${steps}`);
+  const random = options.random ?? seededUniform(options.seed);
+  const horizonPoints = Math.max(1, Math.min(options.horizonPoints ?? 64, steps));
+  const maxPoints = Math.max(2, options.maxPoints ?? 400);
+
+  // The model is costly (it integrates over tensors); scales repeat, so evaluate each (scale, horizon point) once.
+  const cache = new Map<string, { overflow: number; flushes: boolean }>();
+  const evaluate = (scale: number, step: number) => {
+    const point = Math.min(horizonPoints - 1, Math.floor((step / steps) * horizonPoints));
+    const key = `${scale}|${point}`;
+    let hit = cache.get(key);
+    if (!hit) {
+      const progress = horizonPoints === 1 ? 0 : point / (horizonPoints - 1);
+      hit = { overflow: model.overflowProbability(scale, progress), flushes: model.flushesTooMuch(scale, progress) };
+      cache.set(key, hit);
+    }
+    return hit;
+  };
+
+  let scale = clamp(settings.startingScale, settings.lowestScale, settings.highestScale);
+  let clean = 0;
+  let skipped = 0;
+  let firstSkipped = -1;
+  let flushing = 0;
+  const half = Math.floor(steps / 2);
+  let settledLowest = Infinity;
+  let settledHighest = 0;
+  let settledSkips = 0;
+  const changes: ScalePoint[] = [{ step: 0, scale }];
+
+  for (let step = 0; step < steps; step++) {
+    const state = evaluate(scale, step);
+    if (step >= half) {
+      if (scale < settledLowest) settledLowest = scale;
+      if (scale > settledHighest) settledHighest = scale;
+    }
+    const overflowed = state.overflow >= 1 || (state.overflow > 0 && random() < state.overflow);
+    let next = scale;
+    if (overflowed) {
+      skipped++;
+      if (firstSkipped < 0) firstSkipped = step;
+      if (step >= half) settledSkips++;
+      clean = 0;
+      next = Math.max(settings.lowestScale, scale / settings.cutFactor);
+    } else {
+      if (state.flushes) flushing++;
+      clean++;
+      if (clean >= settings.cleanStepsBeforeRaise) {
+        clean = 0;
+        next = Math.min(settings.highestScale, scale * settings.raiseFactor);
+      }
+    }
+    if (next !== scale) {
+      scale = next;
+      changes.push({ step: step + 1, scale });
+    }
+  }
+  if (changes[changes.length - 1]!.step !== steps) changes.push({ step: steps, scale });
+
+  return {
+    settings,
+    steps,
+    seed: options.seed,
+    skippedSteps: skipped,
+    firstSkippedStep: firstSkipped,
+    stepsFlushingTooMuch: flushing,
+    trajectory: thin(changes, maxPoints),
+    finalScale: scale,
+    settledLowest,
+    settledHighest,
+    settledSkipRate: settledSkips / (steps - half),
+  };
+}
+
+function validateSettings(s: DynamicScaleSettings): void {
+  const positive = (name: keyof DynamicScaleSettings) => {
+    if (!(Number.isFinite(s[name]) && s[name] > 0)) throw new RangeError(`${name} must be a positive number. Value: ${s[name]}`);
+  };
+  positive("startingScale");
+  positive("lowestScale");
+  positive("highestScale");
+  if (!(s.raiseFactor > 1)) throw new RangeError(`raiseFactor must be above 1. Value: ${s.raiseFactor}`);
+  if (!(s.cutFactor > 1)) throw new RangeError(`cutFactor must be above 1. Value: ${s.cutFactor}`);
+  if (!(Number.isInteger(s.cleanStepsBeforeRaise) && s.cleanStepsBeforeRaise >= 1)) {
+    throw new RangeError(`cleanStepsBeforeRaise must be a positive integer. Value: ${s.cleanStepsBeforeRaise}`);
+  }
+  if (s.lowestScale > s.highestScale) throw new RangeError(`lowestScale must not exceed highestScale`);
+}
+
+function clamp(x: number, lo: number, hi: number): number {
+  return Math.min(hi, Math.max(lo, x));
+}
+
+/** Keep the first and last points and an even selection between them. */
+function thin(points: ScalePoint[], maxPoints: number): ScalePoint[] {
+  if (points.length <= maxPoints) return points;
+  const out: ScalePoint[] = [];
+  const stride = (points.length - 1) / (maxPoints - 1);
+  for (let i = 0; i < maxPoints; i++) out.push(points[Math.round(i * stride)]!);
+  return out;
+}
+
+/** A small seeded uniform source (mulberry32, a public-domain 32-bit generator; common practice). */
+export function seededUniform(seed: number): () => number {
+  let state = seed >>> 0;
+  return () => {
+    state = (state + 0x6d2b79f5) >>> 0;
+    let t = state;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}

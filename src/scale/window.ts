@@ -1,0 +1,167 @@
+/**
+ * The static loss-scale window: the powers of two S = 2^k for which no gradient tensor overflows beyond the
+ * risk budget (at the largest gradients of the horizon) and no tensor loses more than the tolerated share of
+ * its gradient energy to flushing (at the smallest gradients of the horizon).
+ *
+ * Micikevicius et al. 2018 §3.2: choose S so that S·max|g| stays below the format's largest value; a larger S
+ * has no downside unless it overflows. The window adds the lower edge from flushing (SCIENCE.md §3.2 [X]).
+ */
+
+/** How one gradient tensor reacts to a loss scale 2^k. Both curves must be monotone in k. */
+export interface ScaledTensorCurves {
+  id: string;
+  /** probability that at least one element overflows in one step at scale 2^k (nondecreasing in k) */
+  overflowRisk(log2Scale: number): number;
+  /** share of the tensor's gradient energy flushed to zero at scale 2^k (nonincreasing in k) */
+  flushedEnergy(log2Scale: number): number;
+}
+
+export interface WindowOptions {
+  /** the largest tolerated probability that any gradient overflows in one step, for the whole model */
+  riskBudget: number;
+  /** the largest tolerated share of one tensor's gradient energy flushed to zero */
+  flushTolerance: number;
+  /** binades kept between the pick and the overflow edge, when the window allows */
+  marginBinades: number;
+  /** the exponents searched */
+  lowestLog2: number;
+  highestLog2: number;
+}
+
+/**
+ * Defaults, documented in README.md: one overflowing step in ten thousand for the whole model; a tenth of a
+ * percent of any tensor's gradient energy; two binades of margin below the overflow edge (the largest
+ * gradients drift by more than a binade between seeds at common widths: the finite-width spread, SCIENCE.md §2.6).
+ */
+export const DEFAULT_WINDOW_OPTIONS: WindowOptions = {
+  riskBudget: 1e-4,
+  flushTolerance: 1e-3,
+  marginBinades: 2,
+  lowestLog2: -40,
+  highestLog2: 64,
+};
+
+export interface ScaleWindow {
+  /** smallest k whose flushing is tolerated; null when no k in the searched range is */
+  lowestLog2: number | null;
+  /** largest k whose overflow risk is within budget; null when none is */
+  highestLog2: number | null;
+  /** true when no power of two satisfies both edges */
+  empty: boolean;
+  /** the recommended exponent, or null when the window is empty */
+  pickLog2: number | null;
+  /** binades between the pick and each edge */
+  marginBelowOverflow: number | null;
+  marginAboveFlush: number | null;
+  /** the tensor whose overflow sets the upper edge (the first to break the budget one binade up) */
+  upperEdgeSetBy: string | null;
+  /** the tensor whose flushing sets the lower edge (the worst one binade down) */
+  lowerEdgeSetBy: string | null;
+  /** when empty: how many binades the two edges pull apart (lowest − highest) */
+  gapBinades: number | null;
+  /** whether S = 1 (no scaling) lies inside the window */
+  unscaledFits: boolean;
+}
+
+/**
+ * Find the window of loss-scale exponents for a set of gradient tensors.
+ * Each edge is found by bisection, so the cost is about 2·log2(range) evaluations per tensor.
+ */
+export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options: Partial<WindowOptions> = {}): ScaleWindow {
+  const o = { ...DEFAULT_WINDOW_OPTIONS, ...options };
+  if (!(o.riskBudget > 0 && o.riskBudget < 1)) throw new RangeError(`riskBudget must lie in (0, 1). Value: ${o.riskBudget}`);
+  if (!(o.flushTolerance > 0 && o.flushTolerance < 1)) {
+    throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
+  }
+  const overflowOk = (k: number) => totalRisk(tensors, k) <= o.riskBudget;
+  const flushOk = (k: number) => worstFlush(tensors, k).share <= o.flushTolerance;
+
+  // highest k with overflowOk (monotone: true then false as k grows)
+  const highest = lastTrue(o.lowestLog2, o.highestLog2, overflowOk);
+  // lowest k with flushOk (monotone: false then true as k grows)
+  const lowest = firstTrue(o.lowestLog2, o.highestLog2, flushOk);
+
+  const upperEdgeSetBy = highest === null ? worstRisk(tensors, o.lowestLog2) : highest < o.highestLog2 ? worstRisk(tensors, highest + 1) : null;
+  const lowerEdgeSetBy =
+    lowest === null ? worstFlush(tensors, o.highestLog2).id : lowest > o.lowestLog2 ? worstFlush(tensors, lowest - 1).id : null;
+
+  const empty = highest === null || lowest === null || lowest > highest;
+  let pick: number | null = null;
+  if (!empty) {
+    // as high as the margin allows (a larger scale costs nothing until it overflows), never below the flush edge
+    pick = Math.max(lowest!, highest! - o.marginBinades);
+  }
+  return {
+    lowestLog2: lowest,
+    highestLog2: highest,
+    empty,
+    pickLog2: pick,
+    marginBelowOverflow: pick === null ? null : highest! - pick,
+    marginAboveFlush: pick === null ? null : pick - lowest!,
+    upperEdgeSetBy,
+    lowerEdgeSetBy,
+    gapBinades: empty && highest !== null && lowest !== null ? lowest - highest : null,
+    unscaledFits: !empty && lowest! <= 0 && 0 <= highest!,
+  };
+}
+
+function totalRisk(tensors: readonly ScaledTensorCurves[], k: number): number {
+  // union bound over tensors: P(any overflows) ≤ Σ P(tensor overflows) (common practice)
+  let sum = 0;
+  for (const t of tensors) sum += t.overflowRisk(k);
+  return Math.min(1, sum);
+}
+
+function worstRisk(tensors: readonly ScaledTensorCurves[], k: number): string | null {
+  let best: string | null = null;
+  let bestRisk = -1;
+  for (const t of tensors) {
+    const r = t.overflowRisk(k);
+    if (r > bestRisk) {
+      bestRisk = r;
+      best = t.id;
+    }
+  }
+  return best;
+}
+
+function worstFlush(tensors: readonly ScaledTensorCurves[], k: number): { id: string | null; share: number } {
+  let id: string | null = null;
+  let share = 0;
+  for (const t of tensors) {
+    const s = t.flushedEnergy(k);
+    if (s > share || id === null) {
+      share = Math.max(share, s);
+      id = t.id;
+    }
+  }
+  return { id, share };
+}
+
+/** The largest integer k in [lo, hi] with pred(k) true, for pred true-then-false; null if pred(lo) is false. */
+function lastTrue(lo: number, hi: number, pred: (k: number) => boolean): number | null {
+  if (!pred(lo)) return null;
+  if (pred(hi)) return hi;
+  let a = lo; // pred(a) true
+  let b = hi; // pred(b) false
+  while (b - a > 1) {
+    const m = (a + b) >> 1;
+    if (pred(m)) a = m;
+    else b = m;
+  }
+  return a;
+}
+
+/** The smallest integer k in [lo, hi] with pred(k) true, for pred false-then-true; null if pred(hi) is false. */
+function firstTrue(lo: number, hi: number, pred: (k: number) => boolean): number | null {
+  if (!pred(hi)) return null;
+  if (pred(lo)) return lo;
+  let a = lo; // false
+  let b = hi; // true
+  while (b - a > 1) {
+    const m = (a + b) >> 1;
+    if (pred(m)) b = m;
+    else a = m;
+  }
+  return b;
+}
