@@ -12,3 +12,5 @@ export * from "./measure/index.js";
 export * from "./simulate/index.js";
 export * from "./report/index.js";
 export * from "./batch/index.js";
+// OverflowMode is declared by both formats and spec (the same string union); name one to settle `export *`
+export type { OverflowMode } from "./formats/index.js";

@@ -1,2 +1,8 @@
-/** Public exports of src/batch. */
-export {};
+/** Public exports of src/batch: inputs, variations and the worker pool behind `headroom batch`. */
+export { globToRegExp, hasGlob } from "./glob.js";
+export { expandInputs, pathsFromText, specFilesIn } from "./paths.js";
+export type { BatchInput, ExpandOptions, PathHost } from "./paths.js";
+export { applyVariant, parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, VaryError } from "./vary.js";
+export type { Variant, VaryAxis, VaryValue } from "./vary.js";
+export { defaultWorkers, runPool } from "./pool.js";
+export type { PoolOptions, TaskOutcome } from "./pool.js";

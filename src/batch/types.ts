@@ -1,0 +1,80 @@
+/**
+ * The plain data of a batch run: one row per spec (or per variant of a spec), summarised from a
+ * check in the worker so only small rows cross between threads.
+ */
+
+/** The judgement of a spec, a format or a tensor. Ordered: fits < at risk < fails. */
+export type SummaryVerdict = "fits" | "at-risk" | "fails";
+
+/** How the number of a risk reads: a per-step probability, a share, binades, or a relative error. */
+export type RiskMeasure = "probability" | "share" | "binades" | "relative-error";
+
+/** The loss-scale part of a summary. */
+export type LossScaleSummary =
+  /** a window of powers of two, with the pick inside it (exponents of 2) */
+  | { status: "window"; pickLog2: number; lowLog2: number; highLog2: number }
+  /** no static scale serves the whole horizon; `reason` says why in plain words */
+  | { status: "empty"; reason: string }
+  /** the check did not evaluate a loss scale (no gradient in a reduced format, or not computed) */
+  | { status: "not-evaluated" };
+
+/** The worst thing found in a spec: one tensor (or operation) in one format. */
+export interface WorstSummary {
+  /** a tensor id such as `fc1/activation-gradient`, or the layer of an operation */
+  subject: string;
+  format: string;
+  verdict: SummaryVerdict;
+  /** the finding's kind, e.g. "overflow", "gradient-energy-flushed" */
+  kind: string;
+  /** a short phrase for the kind, e.g. "overflow", "flushed energy" */
+  label: string;
+  value: number;
+  measure: RiskMeasure;
+}
+
+/** What a batch row says about one evaluated spec. */
+export interface SpecSummary {
+  /** the spec's name */
+  name: string;
+  verdict: SummaryVerdict;
+  /** the verdict of each format the plan uses, in the plan's order */
+  formats: { format: string; verdict: SummaryVerdict }[];
+  lossScale: LossScaleSummary;
+  /** null when nothing was found */
+  worst: WorstSummary | null;
+}
+
+/** Where in a file an input error is. */
+export interface ErrorPosition {
+  file: string;
+  /** 1-based; absent when the error concerns the whole file */
+  line?: number;
+  column?: number;
+}
+
+/** Why a row has no result. */
+export interface RowError {
+  /** input: the file, the spec or a --vary key; internal: a failure inside headroom */
+  kind: "input" | "internal";
+  /** one line, starting with the position when there is one */
+  message: string;
+  position?: ErrorPosition;
+}
+
+/** One row of a batch: a spec file, or one variant of it. */
+export type BatchRow =
+  | { index: number; file: string; variant: string | null; status: "ok"; summary: SpecSummary }
+  | { index: number; file: string; variant: string | null; status: "error"; error: RowError };
+
+/**
+ * The exit code of a batch, the strictest that applies: 3 when headroom itself failed on a row,
+ * 2 when some input could not be evaluated, 1 when some spec is at risk or fails, 0 when all fit.
+ */
+export function batchExitCode(rows: readonly BatchRow[]): 0 | 1 | 2 | 3 {
+  let code: 0 | 1 | 2 | 3 = 0;
+  for (const row of rows) {
+    const rowCode = row.status === "error" ? (row.error.kind === "internal" ? 3 : 2) : row.summary.verdict === "fits" ? 0 : 1;
+    if (rowCode > code) code = rowCode;
+  }
+  return code;
+}

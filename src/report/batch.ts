@@ -1,0 +1,304 @@
+/**
+ * Renderers of batch rows: a terminal table, JSON Lines, RFC 4180 CSV and Markdown for CI comments.
+ * Strings in, strings out; the order of rows is the order given.
+ */
+import { FORMAT_NAMES } from "../formats/names.js";
+import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
+import { renderCsv, type CsvField } from "./csv.js";
+import { escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
+import { formatBinades, formatPercent, formatPowerOfTwo, formatProbability, formatValue } from "./number.js";
+import { PLAIN, type Style } from "./style.js";
+import { renderTable, type Cell, type TableColumn } from "./table.js";
+
+/** The closing reminder every human-facing output carries (RULES: predictions are estimates). */
+export const ESTIMATE_NOTE = "Predictions are estimates, not guarantees; confirm with a short training run.";
+
+/** Counts of a batch, for the closing line and for scripts. */
+export interface BatchCounts {
+  total: number;
+  fits: number;
+  atRisk: number;
+  fails: number;
+  inputErrors: number;
+  internalErrors: number;
+}
+
+/** Count rows by outcome. */
+export function countRows(rows: readonly BatchRow[]): BatchCounts {
+  const counts: BatchCounts = { total: rows.length, fits: 0, atRisk: 0, fails: 0, inputErrors: 0, internalErrors: 0 };
+  for (const row of rows) {
+    if (row.status === "error") {
+      if (row.error.kind === "input") counts.inputErrors += 1;
+      else counts.internalErrors += 1;
+    } else if (row.summary.verdict === "fits") counts.fits += 1;
+    else if (row.summary.verdict === "at-risk") counts.atRisk += 1;
+    else counts.fails += 1;
+  }
+  return counts;
+}
+
+/** A verdict in words. */
+export function verdictWords(verdict: SummaryVerdict): string {
+  return verdict === "at-risk" ? "at risk" : verdict;
+}
+
+/** A worst finding's number, in the units of its measure. */
+export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">): string {
+  switch (worst.measure) {
+    case "probability":
+      return formatProbability(worst.value);
+    case "share":
+      return formatPercent(worst.value);
+    case "binades":
+      return `${formatBinades(worst.value)} binades`;
+    case "relative-error":
+      return formatValue(worst.value, 2);
+  }
+}
+
+/** The loss-scale pick and window as two short cells. */
+export function lossScaleCells(lossScale: LossScaleSummary): { pick: string; window: string } {
+  switch (lossScale.status) {
+    case "window":
+      return {
+        pick: formatPowerOfTwo(lossScale.pickLog2),
+        window: `${formatPowerOfTwo(lossScale.lowLog2)}..${formatPowerOfTwo(lossScale.highLog2)}`,
+      };
+    case "empty":
+      return { pick: "none", window: "empty" };
+    case "not-evaluated":
+      return { pick: "not evaluated", window: "not evaluated" };
+  }
+}
+
+/** The formats used by any row, in headroom's canonical order. */
+function formatsUsed(rows: readonly BatchRow[]): string[] {
+  const used = new Set<string>();
+  for (const row of rows) if (row.status === "ok") for (const f of row.summary.formats) used.add(f.format);
+  const known = FORMAT_NAMES.filter((name) => used.has(name));
+  const other = [...used].filter((name) => !(FORMAT_NAMES as readonly string[]).includes(name)).sort();
+  return [...known, ...other];
+}
+
+function formatVerdict(summary: SpecSummary, format: string): SummaryVerdict | undefined {
+  return summary.formats.find((f) => f.format === format)?.verdict;
+}
+
+function paintVerdict(style: Style, verdict: SummaryVerdict | "error", text = verdict === "error" ? "error" : verdictWords(verdict)): string {
+  const role = verdict === "fits" ? "fits" : verdict === "at-risk" ? "risk" : verdict === "fails" ? "fails" : "error";
+  return style.role(role, text);
+}
+
+/** One line counting the outcomes, e.g. "200 specs: 150 fit, 30 at risk, 15 fail, 5 could not be evaluated". */
+export function batchCountLine(rows: readonly BatchRow[]): string {
+  const c = countRows(rows);
+  const parts = [`${c.fits} fit`, `${c.atRisk} at risk`, `${c.fails} fail`];
+  const errors = c.inputErrors + c.internalErrors;
+  if (errors > 0) parts.push(`${errors} could not be evaluated`);
+  return `${c.total} ${c.total === 1 ? "spec" : "specs"}: ${parts.join(", ")}`;
+}
+
+function errorLine(row: Extract<BatchRow, { status: "error" }>): string {
+  const variant = row.variant ? ` [${row.variant}]` : "";
+  const kind = row.error.kind === "internal" ? "internal error: " : "";
+  return `${row.file}${variant}: ${kind}${row.error.message}`;
+}
+
+/** Options of the text renderer. */
+export interface BatchTextOptions {
+  style?: Style;
+}
+
+/**
+ * The summary table: one row per spec (or variant) with its verdict, the verdict per format, the
+ * loss-scale pick and window, and the worst tensor with its risk; then the errors with their positions.
+ */
+export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOptions = {}): string {
+  const style = options.style ?? PLAIN;
+  const formats = formatsUsed(rows);
+  const withVariants = rows.some((row) => row.variant !== null);
+  const columns: TableColumn[] = [
+    { title: "#", align: "right" },
+    { title: "spec" },
+    ...(withVariants ? [{ title: "variant" }] : []),
+    { title: "verdict" },
+    ...formats.map((format): TableColumn => ({ title: format })),
+    { title: "loss scale" },
+    { title: "window" },
+    { title: "worst tensor" },
+    { title: "risk", align: "right" },
+  ];
+  const cells = rows.map((row): Cell[] => {
+    const lead: Cell[] = [row.index + 1, row.file, ...(withVariants ? [row.variant ?? ""] : [])];
+    if (row.status === "error") {
+      return [...lead, paintVerdict(style, "error"), ...formats.map(() => ""), "", "", "", ""];
+    }
+    const s = row.summary;
+    const scale = lossScaleCells(s.lossScale);
+    return [
+      ...lead,
+      paintVerdict(style, s.verdict),
+      ...formats.map((format) => {
+        const verdict = formatVerdict(s, format);
+        return verdict ? paintVerdict(style, verdict) : style.role("muted", "-");
+      }),
+      s.lossScale.status === "not-evaluated" ? style.role("muted", scale.pick) : scale.pick,
+      s.lossScale.status === "not-evaluated" ? "" : scale.window,
+      s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
+      s.worst ? `${s.worst.label} ${formatRiskValue(s.worst)}` : "",
+    ];
+  });
+  let out = renderTable(columns, cells, { styleHeader: (text) => style.role("strong", text) });
+  const errors = rows.filter((row): row is Extract<BatchRow, { status: "error" }> => row.status === "error");
+  if (errors.length > 0) {
+    out += `\n${style.role("strong", "could not be evaluated")}\n`;
+    for (const row of errors) out += `  ${errorLine(row)}\n`;
+  }
+  out += `\n${batchCountLine(rows)}. ${ESTIMATE_NOTE}\n`;
+  return out;
+}
+
+/**
+ * JSON Lines: one object per row, in order, keys in a fixed order. Numbers are plain JSON numbers
+ * (exponents of two for the loss scale); a script can parse each line on its own.
+ */
+export function renderBatchJsonl(rows: readonly BatchRow[]): string {
+  return rows
+    .map((row) => {
+      const base = { index: row.index, file: row.file, variant: row.variant, status: row.status };
+      if (row.status === "error") return JSON.stringify({ ...base, error: row.error });
+      const s = row.summary;
+      return JSON.stringify({
+        ...base,
+        name: s.name,
+        verdict: s.verdict,
+        formats: Object.fromEntries(s.formats.map((f) => [f.format, f.verdict])),
+        lossScale: s.lossScale,
+        worst: s.worst,
+      });
+    })
+    .map((line) => line + "\n")
+    .join("");
+}
+
+/** The CSV columns: fixed, so scripts can rely on them whatever the specs use. */
+export const BATCH_CSV_HEADER = [
+  "index",
+  "file",
+  "variant",
+  "name",
+  "verdict",
+  ...FORMAT_NAMES,
+  "loss_scale_log2",
+  "window_low_log2",
+  "window_high_log2",
+  "loss_scale_status",
+  "worst_tensor",
+  "worst_format",
+  "worst_kind",
+  "worst_value",
+  "worst_measure",
+  "error",
+  "error_line",
+  "error_column",
+] as const;
+
+/** RFC 4180 CSV: a header, then one record per row, CRLF line ends; one column per known format. */
+export function renderBatchCsv(rows: readonly BatchRow[]): string {
+  const records = rows.map((row): CsvField[] => {
+    const lead: CsvField[] = [row.index, row.file, row.variant ?? ""];
+    if (row.status === "error") {
+      return [
+        ...lead,
+        "",
+        "error",
+        ...FORMAT_NAMES.map(() => ""),
+        "",
+        "",
+        "",
+        "",
+        "",
+        "",
+        "",
+        "",
+        "",
+        row.error.message,
+        row.error.position?.line ?? "",
+        row.error.position?.column ?? "",
+      ];
+    }
+    const s = row.summary;
+    const ls = s.lossScale;
+    return [
+      ...lead,
+      s.name,
+      s.verdict,
+      ...FORMAT_NAMES.map((format) => formatVerdict(s, format) ?? ""),
+      ls.status === "window" ? ls.pickLog2 : "",
+      ls.status === "window" ? ls.lowLog2 : "",
+      ls.status === "window" ? ls.highLog2 : "",
+      ls.status,
+      s.worst?.subject ?? "",
+      s.worst?.format ?? "",
+      s.worst?.kind ?? "",
+      s.worst?.value ?? "",
+      s.worst?.measure ?? "",
+      "",
+      "",
+      "",
+    ];
+  });
+  return renderCsv(BATCH_CSV_HEADER, records);
+}
+
+const VERDICT_MARK: Record<SummaryVerdict | "error", string> = {
+  fits: "fits",
+  "at-risk": "**at risk**",
+  fails: "**fails**",
+  error: "**error**",
+};
+
+/** Markdown for a CI comment: a count line, the table, and the errors with their positions. */
+export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
+  const formats = formatsUsed(rows);
+  const withVariants = rows.some((row) => row.variant !== null);
+  const cells = rows.map((row): MarkdownCell[] => {
+    const lead: MarkdownCell[] = [row.file, ...(withVariants ? [row.variant ?? ""] : [])];
+    if (row.status === "error") return [...lead, { markdown: VERDICT_MARK.error }, ...formats.map(() => ""), "", "", "", ""];
+    const s = row.summary;
+    const scale = lossScaleCells(s.lossScale);
+    return [
+      ...lead,
+      { markdown: VERDICT_MARK[s.verdict] },
+      ...formats.map((format) => {
+        const verdict = formatVerdict(s, format);
+        return verdict ? verdictWords(verdict) : "-";
+      }),
+      s.lossScale.status === "not-evaluated" ? { markdown: "_not evaluated_" } : scale.pick,
+      s.lossScale.status === "not-evaluated" ? "" : scale.window,
+      s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
+      s.worst ? `${s.worst.label} ${formatRiskValue(s.worst)}` : "",
+    ];
+  });
+  let out = `**headroom batch**: ${escapeMarkdown(batchCountLine(rows))}\n\n`;
+  out += markdownTable(
+    [
+      { title: "spec" },
+      ...(withVariants ? [{ title: "variant" }] : []),
+      { title: "verdict" },
+      ...formats.map((format) => ({ title: format })),
+      { title: "loss scale" },
+      { title: "window" },
+      { title: "worst tensor" },
+      { title: "risk", align: "right" as const },
+    ],
+    cells,
+  );
+  const errors = rows.filter((row): row is Extract<BatchRow, { status: "error" }> => row.status === "error");
+  if (errors.length > 0) {
+    out += "\nCould not be evaluated:\n\n";
+    for (const row of errors) out += `- ${escapeMarkdown(errorLine(row))}\n`;
+  }
+  out += `\n_${escapeMarkdown(ESTIMATE_NOTE)}_\n`;
+  return out;
+}

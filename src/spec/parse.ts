@@ -1,0 +1,126 @@
+/** YAML (or JSON) text in; a validated, normalized NetworkSpec out, or every problem of the file with its position. */
+import { readFile, stat } from "node:fs/promises";
+import { LineCounter, parseDocument, type Document } from "yaml";
+import { crossChecks } from "./checks.js";
+import { formatSpecPath, type SpecIssue, type SpecPosition } from "./issues.js";
+import { locateIn } from "./locate.js";
+import { errorMap, flattenIssues, type RawIssue } from "./messages.js";
+import { normalizeSpec } from "./normalize.js";
+import { specSchema } from "./schema.js";
+import type { NetworkSpec, SpecPath } from "./types.js";
+
+/** What parsing a spec gives: the spec with a way back to positions, or every problem found. */
+export type SpecResult =
+  | { ok: true; spec: NetworkSpec; locate: (path: SpecPath) => SpecPosition; warnings: SpecIssue[] }
+  | { ok: false; issues: SpecIssue[] };
+
+/** Largest spec file accepted, in bytes (YAML parses at about 1.5 MB/s; real specs are a few kB). */
+export const MAX_SPEC_BYTES = 10 * 1024 * 1024;
+
+/**
+ * How many alias expansions a document may make. The yaml library's default (100) refuses "billion laughs"
+ * documents within milliseconds; specs have no need for more (reuse layers through `blocks` instead).
+ */
+const MAX_ALIAS_COUNT = 100;
+
+function wholeFile(file: string, message: string): SpecResult {
+  return { ok: false, issues: [{ file, line: 0, column: 0, path: "", message }] };
+}
+
+/** The first line of a yaml library message, without its own position suffix, lowercase. */
+function yamlMessage(message: string): string {
+  const first = (message.split("\n")[0] ?? message).replace(/ at line \d+, column \d+:?\s*$/, "").replace(/[.:]\s*$/, "");
+  return first.charAt(0).toLowerCase() + first.slice(1);
+}
+
+function byPosition(a: SpecIssue, b: SpecIssue): number {
+  return a.line - b.line || a.column - b.column || a.path.localeCompare(b.path);
+}
+
+/**
+ * Parse and validate a spec from its text. `source` names the file in messages (and gives the spec's
+ * default name). Never throws for bad input: problems come back as issues, all of them at once.
+ * @example parseSpec("input: { features: 784 }\n...", "mlp.yaml") // => { ok: true, spec, locate, warnings }
+ */
+export function parseSpec(text: string, source: string): SpecResult {
+  if (typeof text !== "string") throw new TypeError(`parseSpec needs the text of a spec, got ${typeof text}`);
+  const counter = new LineCounter();
+  const doc = parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys: true, prettyErrors: true });
+  if (doc.errors.length > 0) {
+    const issues = doc.errors.map((error) => ({
+      file: source,
+      line: error.linePos?.[0]?.line ?? 0,
+      column: error.linePos?.[0]?.col ?? 0,
+      path: "",
+      message: `yaml: ${yamlMessage(error.message)}`,
+    }));
+    return { ok: false, issues: issues.sort(byPosition) };
+  }
+  let data: unknown;
+  try {
+    data = doc.toJS({ maxAliasCount: MAX_ALIAS_COUNT });
+  } catch (error) {
+    if (error instanceof ReferenceError || error instanceof RangeError) {
+      return wholeFile(source, `refused: the document expands aliases too many times (more than ${MAX_ALIAS_COUNT}); reuse layers with blocks instead`);
+    }
+    throw error;
+  }
+  if (data === null || data === undefined) {
+    return { ok: false, issues: [{ file: source, line: 1, column: 1, path: "", message: "the spec is empty: it needs at least input, training and layers" }] };
+  }
+  const toIssue = (raw: RawIssue): SpecIssue => {
+    const at = locateIn(doc as Document, counter, raw.path, raw.atKey);
+    return { file: source, line: at.line, column: at.column, path: formatSpecPath(raw.path), message: raw.message };
+  };
+  const checked = specSchema.safeParse(data, { error: errorMap, reportInput: true });
+  const cross = crossChecks(data);
+  const errors = [...(checked.success ? [] : flattenIssues(checked.error.issues)), ...cross.errors].map(toIssue);
+  if (errors.length > 0 || !checked.success) return { ok: false, issues: dedupe(errors).sort(byPosition) };
+  const spec = normalizeSpec(checked.data, source);
+  return {
+    ok: true,
+    spec,
+    locate: (path: SpecPath) => {
+      const at = locateIn(doc as Document, counter, path);
+      return { file: source, line: at.line, column: at.column };
+    },
+    warnings: cross.warnings.map(toIssue).sort(byPosition),
+  };
+}
+
+function dedupe(issues: SpecIssue[]): SpecIssue[] {
+  const seen = new Set<string>();
+  return issues.filter((issue) => {
+    const key = `${issue.line}:${issue.column}:${issue.path}:${issue.message}`;
+    if (seen.has(key)) return false;
+    seen.add(key);
+    return true;
+  });
+}
+
+/**
+ * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
+ * file: that too comes back as an issue.
+ */
+export async function loadSpec(path: string): Promise<SpecResult> {
+  if (!/\.(ya?ml|json)$/i.test(path)) {
+    const extension = /\.[^./\\]*$/.exec(path)?.[0];
+    return wholeFile(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
+  }
+  try {
+    const info = await stat(path);
+    if (!info.isFile()) return wholeFile(path, "not a file");
+    if (info.size > MAX_SPEC_BYTES) {
+      return wholeFile(path, `the file has ${info.size} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
+    }
+    const text = await readFile(path, "utf8");
+    return parseSpec(text.charCodeAt(0) === 0xfeff ? text.slice(1) : text, path);
+  } catch (error) {
+    const code = (error as { code?: unknown }).code;
+    if (code === "ENOENT") return wholeFile(path, "no such file");
+    if (code === "EACCES" || code === "EPERM") return wholeFile(path, "permission denied");
+    if (code === "EISDIR") return wholeFile(path, "not a file");
+    if (typeof code === "string") return wholeFile(path, `cannot read the file (${code})`);
+    throw error;
+  }
+}

@@ -1,0 +1,98 @@
+import { describe, expect, test } from "vitest";
+import { expandInputs, pathsFromText, specFilesIn, type PathHost } from "../../src/batch/paths.js";
+
+/** An in-memory file system: paths ending in "/" are folders. */
+function memoryHost(paths: string[], links: Record<string, string> = {}): PathHost {
+  const files = new Set(paths.filter((p) => !p.endsWith("/")));
+  const folders = new Set<string>(["."]);
+  for (const p of paths) {
+    const parts = p.replace(/\/$/, "").split("/");
+    for (let i = 1; i < (p.endsWith("/") ? parts.length + 1 : parts.length); i++) folders.add(parts.slice(0, i).join("/"));
+  }
+  const norm = (p: string) => (p.startsWith("./") ? p.slice(2) : p);
+  const kind = (raw: string): "file" | "folder" | undefined => {
+    const p = norm(raw);
+    const target = links[p] ?? p;
+    if (files.has(target)) return "file";
+    if (folders.has(target)) return "folder";
+    return undefined;
+  };
+  return {
+    kind,
+    list(raw) {
+      const dir = norm(raw);
+      const prefix = dir === "." ? "" : dir + "/";
+      const names = new Map<string, "file" | "folder" | "link">();
+      for (const p of [...files, ...folders, ...Object.keys(links)]) {
+        if (!p.startsWith(prefix) || p === dir) continue;
+        const rest = p.slice(prefix.length);
+        if (rest === "" || rest.includes("/")) {
+          const first = rest.split("/")[0]!;
+          if (first && !names.has(first)) names.set(first, "folder");
+          continue;
+        }
+        names.set(rest, p in links ? "link" : files.has(p) ? "file" : "folder");
+      }
+      return [...names].map(([name, k]) => ({ name, kind: k }));
+    },
+  };
+}
+
+const HOST = memoryHost([
+  "specs/b.yaml",
+  "specs/a.yml",
+  "specs/notes.txt",
+  "specs/deep/c.yaml",
+  "specs/deep/d.YAML",
+  "specs/.hidden/e.yaml",
+  "specs/node_modules/f.yaml",
+  "other/x.yaml",
+  "empty/",
+  "plain-name",
+]);
+
+describe("specFilesIn", () => {
+  test("finds .yaml and .yml recursively in byte order, skipping hidden folders and node_modules", () => {
+    expect(specFilesIn(HOST, "specs")).toEqual(["specs/a.yml", "specs/b.yaml", "specs/deep/c.yaml", "specs/deep/d.YAML"]);
+  });
+});
+
+describe("expandInputs", () => {
+  test("files, folders and globs in argument order, each file once", () => {
+    const inputs = expandInputs(HOST, ["other/x.yaml", "specs", "specs/*.yaml", "plain-name"]);
+    expect(inputs).toEqual([
+      { kind: "file", path: "other/x.yaml", argument: "other/x.yaml" },
+      { kind: "file", path: "specs/a.yml", argument: "specs" },
+      { kind: "file", path: "specs/b.yaml", argument: "specs" },
+      { kind: "file", path: "specs/deep/c.yaml", argument: "specs" },
+      { kind: "file", path: "specs/deep/d.YAML", argument: "specs" },
+      { kind: "file", path: "plain-name", argument: "plain-name" },
+    ]);
+  });
+  test("a ** glob reaches every depth", () => {
+    const inputs = expandInputs(HOST, ["**/c.yaml", "./specs/**/*.yaml"]);
+    expect(inputs.map((i) => (i.kind === "file" ? i.path : i.message))).toEqual(["specs/deep/c.yaml", "specs/b.yaml"]);
+  });
+  test("arguments that give no file become error entries in place", () => {
+    const inputs = expandInputs(HOST, ["missing.yaml", "specs/b.yaml", "nothing/*.yaml", "empty"]);
+    expect(inputs).toEqual([
+      { kind: "error", argument: "missing.yaml", message: "missing.yaml: no such file or folder" },
+      { kind: "file", path: "specs/b.yaml", argument: "specs/b.yaml" },
+      { kind: "error", argument: "nothing/*.yaml", message: "nothing/*.yaml: no file matches this pattern" },
+      { kind: "error", argument: "empty", message: "empty: the folder holds no .yaml or .yml files" },
+    ]);
+  });
+  test("- reads the paths listed on stdin, in place", () => {
+    const inputs = expandInputs(HOST, ["other/x.yaml", "-"], { stdinPaths: pathsFromText("specs/b.yaml\r\n\n# a comment\n  specs/deep  \n") });
+    expect(inputs.map((i) => (i.kind === "file" ? i.path : i.message))).toEqual([
+      "other/x.yaml",
+      "specs/b.yaml",
+      "specs/deep/c.yaml",
+      "specs/deep/d.YAML",
+    ]);
+  });
+  test("symbolic links to files are followed, links to folders are not walked", () => {
+    const host = memoryHost(["real/a.yaml", "top/"], { "top/link.yaml": "real/a.yaml", "top/loop": "top" });
+    expect(specFilesIn(host, "top")).toEqual(["top/link.yaml"]);
+  });
+});

@@ -1,0 +1,75 @@
+import { describe, expect, test } from "vitest";
+import { runPool, type TaskOutcome } from "../../src/batch/pool.js";
+
+// The pool starts real worker threads; the fixture imports serveTasks from dist/ (npm run build first).
+const WORKER = new URL("./fixtures/test-worker.mjs", import.meta.url);
+const BROKEN = new URL("./fixtures/broken-worker.mjs", import.meta.url);
+
+type Task = { kind: "square" | "throw" | "exit" | "wait"; n: number; ms?: number };
+
+describe("runPool", () => {
+  test("returns outcomes in input order even when later tasks finish first", async () => {
+    // the first task of each worker is slow, so later tasks settle before it
+    const tasks: Task[] = [
+      { kind: "wait", n: 0, ms: 150 },
+      { kind: "wait", n: 1, ms: 150 },
+      ...Array.from({ length: 20 }, (_, i): Task => ({ kind: "square", n: i + 2 })),
+    ];
+    const finishOrder: number[] = [];
+    const outcomes = await runPool<Task, { n: number }>(WORKER, tasks, {
+      workers: 2,
+      inFlight: 1,
+      onSettled: (index) => finishOrder.push(index),
+    });
+    expect(outcomes.map((o) => (o.ok ? o.value.n : -1))).toEqual(tasks.map((t) => t.n));
+    expect(finishOrder).toHaveLength(tasks.length);
+    expect(new Set(finishOrder).size).toBe(tasks.length);
+  });
+
+  test("a task that throws fails alone; the rest succeed", async () => {
+    const tasks: Task[] = Array.from({ length: 10 }, (_, i): Task => ({ kind: i === 4 ? "throw" : "square", n: i }));
+    const outcomes = await runPool<Task, { square: number }>(WORKER, tasks, { workers: 2 });
+    expect(outcomes[4]).toEqual({ ok: false, error: "task 4 refused" });
+    outcomes.forEach((o, i) => {
+      if (i !== 4) expect(o).toMatchObject({ ok: true, value: { square: i * i } });
+    });
+  });
+
+  test("a worker that dies fails only the task it was running and is replaced", async () => {
+    const tasks: Task[] = Array.from({ length: 12 }, (_, i): Task => ({ kind: i === 3 || i === 8 ? "exit" : "square", n: i }));
+    const outcomes = await runPool<Task, { square: number }>(WORKER, tasks, { workers: 2, inFlight: 3 });
+    expect(outcomes).toHaveLength(12);
+    for (const i of [3, 8]) {
+      const o = outcomes[i]!;
+      expect(o.ok).toBe(false);
+      if (!o.ok) expect(o.error).toMatch(/^worker stopped: exited with code 7/);
+    }
+    outcomes.forEach((o, i) => {
+      if (i !== 3 && i !== 8) expect(o).toEqual({ ok: true, value: { n: i, square: i * i, offset: 0 } });
+    });
+  });
+
+  test("passes workerData to every worker", async () => {
+    const outcomes = await runPool<Task, { offset: number }>(WORKER, [{ kind: "square", n: 1 }], { workerData: { offset: 5 } });
+    expect(outcomes).toEqual([{ ok: true, value: { n: 1, square: 1, offset: 5 } }]);
+  });
+
+  test("a worker script that cannot start fails every task instead of crashing or looping", async () => {
+    const tasks: Task[] = Array.from({ length: 30 }, (_, i): Task => ({ kind: "square", n: i }));
+    const outcomes: TaskOutcome<unknown>[] = await runPool(BROKEN, tasks, { workers: 2 });
+    expect(outcomes).toHaveLength(30);
+    for (const o of outcomes) {
+      expect(o.ok).toBe(false);
+      if (!o.ok) expect(o.error).toContain("this worker cannot start");
+    }
+  });
+
+  test("no tasks: no workers, an empty list", async () => {
+    expect(await runPool(BROKEN, [])).toEqual([]);
+  });
+
+  test("refuses a pool size that is not a positive integer", async () => {
+    await expect(runPool(WORKER, [1], { workers: 0 })).rejects.toThrow(RangeError);
+    await expect(runPool(WORKER, [1], { workers: 1.5 })).rejects.toThrow(RangeError);
+  });
+});

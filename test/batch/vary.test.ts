@@ -1,0 +1,138 @@
+import { describe, expect, test } from "vitest";
+import { parseDocument } from "yaml";
+import { applyVariant, parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, VaryError } from "../../src/batch/vary.js";
+
+describe("parseKeyPath", () => {
+  test.each([
+    ["training.batch", ["training", "batch"]],
+    ["layers[2].width", ["layers", 2, "width"]],
+    ["blocks.ffn[0].hidden", ["blocks", "ffn", 0, "hidden"]],
+    ["layers[1][0]", ["layers", 1, 0]],
+    ["precision.loss-scale", ["precision", "loss-scale"]],
+  ])("%s", (key, path) => expect(parseKeyPath(key)).toEqual(path));
+  test.each(["", "a..b", "a.[1]", "a[x]", "a[1", ".a", "a."])("refuses %j", (key) => {
+    expect(() => parseKeyPath(key)).toThrow(VaryError);
+  });
+});
+
+describe("parseVaryOption", () => {
+  test("reads values as YAML 1.2 scalars (YAML 1.2.2 §10.3 core schema)", () => {
+    const axis = parseVaryOption("training.batch=8, 16,1e-4,true,bfloat16,'32'");
+    expect(axis.key).toBe("training.batch");
+    expect(axis.values.map((v) => v.value)).toEqual([8, 16, 0.0001, true, "bfloat16", "32"]);
+    expect(axis.values.map((v) => v.text)).toEqual(["8", "16", "1e-4", "true", "bfloat16", "'32'"]);
+  });
+  test("refuses a missing =, empty values, duplicates and non-scalars", () => {
+    expect(() => parseVaryOption("training.batch")).toThrow(/expected KEY=VALUE1/);
+    expect(() => parseVaryOption("training.batch=8,,16")).toThrow(/empty value/);
+    expect(() => parseVaryOption("training.batch=8,8")).toThrow(/listed twice/);
+    expect(() => parseVaryOption("training.batch=[8]")).toThrow(/not a single value/);
+  });
+});
+
+describe("variantsOf", () => {
+  test("the cross product, first axis slowest, named key=value,...", () => {
+    const variants = variantsOf([parseVaryOption("training.batch=8,16"), parseVaryOption("precision.activations=binary16,bfloat16,e4m3")]);
+    expect(variants.map((v) => v.name)).toEqual([
+      "training.batch=8,precision.activations=binary16",
+      "training.batch=8,precision.activations=bfloat16",
+      "training.batch=8,precision.activations=e4m3",
+      "training.batch=16,precision.activations=binary16",
+      "training.batch=16,precision.activations=bfloat16",
+      "training.batch=16,precision.activations=e4m3",
+    ]);
+  });
+  test("no axes, no variants; the same key twice is refused", () => {
+    expect(variantsOf([])).toEqual([]);
+    expect(() => variantsOf([parseVaryOption("a.b=1"), parseVaryOption("a.b=2")])).toThrow(/varied twice/);
+  });
+});
+
+const SPEC = `name: tiny
+training:
+  batch: 32
+  loss: { kind: cross-entropy, classes: 10 }
+precision:
+  activations: binary16
+layers:
+  - dense: 64
+  - relu
+  - { type: dense, width: 10 }
+`;
+
+const SCHEMA = {
+  type: "object",
+  additionalProperties: false,
+  properties: {
+    name: { type: "string" },
+    training: {
+      type: "object",
+      additionalProperties: false,
+      properties: { batch: { type: "integer" }, workers: { type: "integer" }, loss: { $ref: "#/definitions/loss" } },
+    },
+    precision: {
+      anyOf: [
+        { type: "object", additionalProperties: false, properties: { activations: { type: "string" }, weights: { type: "string" } } },
+        { type: "string" },
+      ],
+    },
+    layers: { type: "array", items: { $ref: "#/definitions/layer" } },
+    blocks: { type: "object", additionalProperties: { type: "array", items: { $ref: "#/definitions/layer" } } },
+  },
+  definitions: {
+    loss: { type: "object", properties: { kind: { type: "string" }, classes: { type: "integer" } } },
+    layer: { oneOf: [{ type: "string" }, { type: "object", properties: { dense: { type: "integer" }, width: { type: "integer" }, type: { type: "string" } } }] },
+  },
+};
+
+describe("schemaHasPath", () => {
+  test("follows properties, $ref, anyOf/oneOf, items and additionalProperties", () => {
+    expect(schemaHasPath(SCHEMA, ["training", "workers"])).toBe(true);
+    expect(schemaHasPath(SCHEMA, ["training", "loss", "classes"])).toBe(true);
+    expect(schemaHasPath(SCHEMA, ["precision", "weights"])).toBe(true);
+    expect(schemaHasPath(SCHEMA, ["layers", 5, "width"])).toBe(true);
+    expect(schemaHasPath(SCHEMA, ["blocks", "any-name", 0, "dense"])).toBe(true);
+    expect(schemaHasPath(SCHEMA, ["training", "bacth"])).toBe(false);
+    expect(schemaHasPath(SCHEMA, ["precision", "colour"])).toBe(false);
+  });
+});
+
+describe("applyVariant", () => {
+  const doc = parseDocument(SPEC);
+  const apply = (...options: string[]) => variantsOf(options.map(parseVaryOption)).map((v) => applyVariant(doc, v, SCHEMA).toJS());
+
+  test("sets existing values, one copy per variant, leaving the original alone", () => {
+    const [a, b] = apply("training.batch=8,16");
+    expect(a.training.batch).toBe(8);
+    expect(b.training.batch).toBe(16);
+    expect(doc.toJS().training.batch).toBe(32);
+  });
+  test("sets list items and keys inside flow maps", () => {
+    const [v] = apply("layers[0].dense=128", "layers[2].width=5");
+    expect(v.layers[0]).toEqual({ dense: 128 });
+    expect(v.layers[2]).toMatchObject({ width: 5 });
+  });
+  test("a varied scalar keeps its position in the file", () => {
+    const [variant] = variantsOf([parseVaryOption("training.batch=8")]);
+    const varied = applyVariant(doc, variant!, SCHEMA);
+    const node = varied.getIn(["training", "batch"], true) as { range: [number, number, number] };
+    expect(SPEC.slice(node.range[0], node.range[1])).toBe("32");
+  });
+  test("adds a key the file leaves to its default when the schema has a place for it", () => {
+    const [v] = apply("training.workers=4", "precision.weights=bfloat16");
+    expect(v.training.workers).toBe(4);
+    expect(v.precision).toEqual({ activations: "binary16", weights: "bfloat16" });
+  });
+  test("unknown paths are errors naming the key", () => {
+    const err = (option: string) => () => apply(option);
+    expect(err("training.bacth=8")).toThrow("--vary training.bacth: the spec has no key training.bacth");
+    expect(err("layers[7].width=5")).toThrow("--vary layers[7].width: layers has 3 items, so there is no layers[7]");
+    expect(err("layers[1].width=5")).toThrow(/layers\[1\] is a single value \("relu"\)/);
+    expect(err("training=5")).toThrow(/holds a map or list/);
+    expect(err("training[0]=5")).toThrow(/is a map of keys, not a list/);
+  });
+  test("without a schema, only keys in the file can be varied", () => {
+    const [variant] = variantsOf([parseVaryOption("training.workers=2")]);
+    expect(() => applyVariant(doc, variant!)).toThrow("training.workers is not in the spec (training has batch, loss)");
+  });
+});

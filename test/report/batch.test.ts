@@ -1,0 +1,174 @@
+import { describe, expect, test } from "vitest";
+import { batchExitCode, type BatchRow } from "../../src/batch/types.js";
+import {
+  BATCH_CSV_HEADER,
+  batchCountLine,
+  countRows,
+  renderBatchCsv,
+  renderBatchJsonl,
+  renderBatchMarkdown,
+  renderBatchText,
+} from "../../src/report/batch.js";
+import { createStyle } from "../../src/report/style.js";
+import { parseRfc4180 } from "./rfc4180.js";
+
+// Invented rows for a demo sweep (numbers are demo values, not predictions).
+const ROWS: BatchRow[] = [
+  {
+    index: 0,
+    file: "sweep/small.yaml",
+    variant: null,
+    status: "ok",
+    summary: {
+      name: "small",
+      verdict: "fits",
+      formats: [{ format: "bfloat16", verdict: "fits" }, { format: "binary32", verdict: "fits" }],
+      lossScale: { status: "not-evaluated" },
+      worst: null,
+    },
+  },
+  {
+    index: 1,
+    file: "sweep/wide, \"odd\".yaml",
+    variant: null,
+    status: "ok",
+    summary: {
+      name: "wide",
+      verdict: "at-risk",
+      formats: [{ format: "binary16", verdict: "at-risk" }, { format: "binary32", verdict: "fits" }],
+      lossScale: { status: "window", pickLog2: 12, lowLog2: 8, highLog2: 15 },
+      worst: {
+        subject: "block-3/activation-gradient",
+        format: "binary16",
+        verdict: "at-risk",
+        kind: "overflow",
+        label: "overflow",
+        value: 3.2e-5,
+        measure: "probability",
+      },
+    },
+  },
+  {
+    index: 2,
+    file: "sweep/broken.yaml",
+    variant: null,
+    status: "error",
+    error: {
+      kind: "input",
+      message: "sweep/broken.yaml:4:10: training.batch: expected a positive whole number",
+      position: { file: "sweep/broken.yaml", line: 4, column: 10 },
+    },
+  },
+  {
+    index: 3,
+    file: "sweep/deep.yaml",
+    variant: null,
+    status: "ok",
+    summary: {
+      name: "deep",
+      verdict: "fails",
+      formats: [{ format: "binary16", verdict: "fails" }],
+      lossScale: { status: "empty", reason: "gradients flush before activations overflow" },
+      worst: {
+        subject: "embed/weight-gradient",
+        format: "binary16",
+        verdict: "fails",
+        kind: "gradient-energy-flushed",
+        label: "flushed energy",
+        value: 0.125,
+        measure: "share",
+      },
+    },
+  },
+];
+
+describe("batchExitCode (README: 0 all fit, 1 some at risk or failing, 2 input errors, 3 internal; strictest wins)", () => {
+  const ok = ROWS[0]!;
+  const risk = ROWS[1]!;
+  const bad = ROWS[2]!;
+  test("each level", () => {
+    expect(batchExitCode([])).toBe(0);
+    expect(batchExitCode([ok])).toBe(0);
+    expect(batchExitCode([ok, risk])).toBe(1);
+    expect(batchExitCode([risk, bad, ok])).toBe(2);
+    expect(batchExitCode([bad, { index: 9, file: "x", variant: null, status: "error", error: { kind: "internal", message: "worker stopped" } }])).toBe(3);
+  });
+});
+
+describe("renderBatchText", () => {
+  const text = renderBatchText(ROWS);
+  test("one line per row, in order, with a column per format used", () => {
+    const lines = text.split("\n");
+    expect(lines[0]).toMatch(/^#\s+spec\s+verdict\s+binary16\s+bfloat16\s+binary32\s+loss scale\s+window\s+worst tensor\s+risk$/);
+    expect(lines[2]).toMatch(/^1 {2}sweep\/small\.yaml\s+fits\s+-\s+fits\s+fits\s+not evaluated\s*$/);
+    expect(lines[3]).toContain("at risk");
+    expect(lines[3]).toContain("2^12");
+    expect(lines[3]).toContain("2^8..2^15");
+    expect(lines[3]).toContain("block-3/activation-gradient (binary16)");
+    expect(lines[3]).toMatch(/overflow 3\.2e-5$/);
+    expect(lines[4]).toMatch(/^3 {2}sweep\/broken\.yaml\s+error$/);
+    expect(lines[5]).toContain("none");
+    expect(lines[5]).toContain("empty");
+    expect(lines[5]).toMatch(/flushed energy 12\.5%$/);
+  });
+  test("lists errors with positions and ends with counts and the estimate note", () => {
+    expect(text).toContain("could not be evaluated\n  sweep/broken.yaml: sweep/broken.yaml:4:10: training.batch");
+    expect(text).toContain("4 specs: 1 fit, 1 at risk, 1 fail, 1 could not be evaluated. Predictions are estimates");
+  });
+  test("has no escapes without colour, and keeps alignment with colour", () => {
+    expect(text).not.toContain("\x1b");
+    const coloured = renderBatchText(ROWS, { style: createStyle(true) });
+    expect(coloured).toContain("\x1b[");
+    expect(coloured.replace(/\x1b\[[0-9;]*m/g, "")).toBe(text);
+  });
+  test("adds a variant column when rows carry variants", () => {
+    const varied = renderBatchText([{ ...ROWS[0]!, variant: "training.batch=8" }]);
+    expect(varied.split("\n")[0]).toMatch(/spec\s+variant\s+verdict/);
+    expect(varied).toContain("training.batch=8");
+  });
+});
+
+describe("renderBatchJsonl", () => {
+  test("one JSON object per line, in order", () => {
+    const lines = renderBatchJsonl(ROWS).split("\n");
+    expect(lines.at(-1)).toBe("");
+    const objects = lines.slice(0, -1).map((line) => JSON.parse(line));
+    expect(objects.map((o) => o.index)).toEqual([0, 1, 2, 3]);
+    expect(objects[1]).toMatchObject({ verdict: "at-risk", formats: { binary16: "at-risk", binary32: "fits" }, lossScale: { pickLog2: 12 } });
+    expect(objects[2]).toMatchObject({ status: "error", error: { position: { line: 4, column: 10 } } });
+  });
+});
+
+describe("renderBatchCsv", () => {
+  test("parses with a strict RFC 4180 reader; fixed header; one record per row", () => {
+    const records = parseRfc4180(renderBatchCsv(ROWS));
+    expect(records[0]).toEqual([...BATCH_CSV_HEADER]);
+    expect(records).toHaveLength(5);
+    const at = (name: string) => BATCH_CSV_HEADER.indexOf(name as (typeof BATCH_CSV_HEADER)[number]);
+    expect(records[2]![at("file")]).toBe('sweep/wide, "odd".yaml');
+    expect(records[2]![at("binary16")]).toBe("at-risk");
+    expect(records[2]![at("loss_scale_log2")]).toBe("12");
+    expect(records[2]![at("worst_value")]).toBe("0.000032");
+    expect(records[3]![at("verdict")]).toBe("error");
+    expect(records[3]![at("error_line")]).toBe("4");
+    expect(records[1]![at("loss_scale_status")]).toBe("not-evaluated");
+  });
+});
+
+describe("renderBatchMarkdown", () => {
+  const md = renderBatchMarkdown(ROWS);
+  test("a count line, a table with escaped names, errors, and the note", () => {
+    expect(md.startsWith("**headroom batch**: 4 specs: 1 fit, 1 at risk, 1 fail, 1 could not be evaluated\n\n| spec | verdict |")).toBe(true);
+    expect(md).toContain("| sweep/wide, \"odd\".yaml | **at risk** |");
+    expect(md).toContain("_not evaluated_");
+    expect(md).toContain("- sweep/broken.yaml: sweep/broken.yaml:4:10: training.batch");
+    expect(md).toContain("_Predictions are estimates");
+  });
+});
+
+describe("countRows / batchCountLine", () => {
+  test("counts outcomes", () => {
+    expect(countRows(ROWS)).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0 });
+    expect(batchCountLine([ROWS[0]!])).toBe("1 spec: 1 fit, 0 at risk, 0 fail");
+  });
+});

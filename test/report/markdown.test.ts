@@ -1,0 +1,48 @@
+import { describe, expect, test } from "vitest";
+import { escapeMarkdown, markdownCode, markdownTable } from "../../src/report/markdown.js";
+
+describe("escapeMarkdown", () => {
+  test("escapes the pipe so a cell cannot split (GitHub Flavored Markdown spec, tables extension)", () => {
+    expect(escapeMarkdown("a|b")).toBe("a\\|b");
+  });
+  test("turns line breaks into <br> so a row stays on one line", () => {
+    expect(escapeMarkdown("one\ntwo\r\nthree")).toBe("one<br>two<br>three");
+  });
+  test("shows HTML as text", () => {
+    expect(escapeMarkdown("<script>alert(1)</script>&")).toBe("&lt;script&gt;alert\\(1\\)&lt;/script&gt;&amp;");
+  });
+  test("escapes emphasis, code and link punctuation (CommonMark §2.4 backslash escapes)", () => {
+    expect(escapeMarkdown("__init__ *x* `y` [z]")).toBe("\\_\\_init\\_\\_ \\*x\\* \\`y\\` \\[z\\]");
+  });
+});
+
+describe("markdownCode", () => {
+  test("uses a longer fence around backticks (CommonMark §6.1)", () => {
+    expect(markdownCode("a`b")).toBe("``a`b``");
+    expect(markdownCode("plain")).toBe("`plain`");
+  });
+});
+
+describe("markdownTable", () => {
+  test("writes header, delimiter row with alignment and escaped cells", () => {
+    const text = markdownTable(
+      [{ title: "spec" }, { title: "risk", align: "right" }, { title: "note", align: "center" }],
+      [
+        ["a|b", 3, { markdown: "**fails**" }],
+        ["c\nd", null],
+      ],
+    );
+    expect(text).toBe(
+      "| spec | risk | note |\n| --- | ---: | :---: |\n| a\\|b | 3 | **fails** |\n| c<br>d |  |  |\n",
+    );
+  });
+  test("every row has as many unescaped pipes as the header", () => {
+    const text = markdownTable([{ title: "a" }, { title: "b" }], [["x|y|z", "|"], ["\\|", "w"]]);
+    const pipes = (line: string) => line.replace(/\\\\/g, "").replace(/\\\|/g, "").split("|").length;
+    const lines = text.trimEnd().split("\n");
+    for (const line of lines) expect(pipes(line)).toBe(pipes(lines[0]!));
+  });
+  test("refuses rows longer than the columns", () => {
+    expect(() => markdownTable([{ title: "a" }], [["x", "y"]])).toThrow(RangeError);
+  });
+});
