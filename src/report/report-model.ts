@@ -1,0 +1,104 @@
+/**
+ * What the HTML report shows, as plain data. A check result is turned into this model by
+ * `reportModel` (report-from-check.ts); the HTML renderer reads nothing else, so it can be tested
+ * with any model, including names no spec validator would let through.
+ */
+import type { LossScaleSummary, RiskMeasure, SummaryVerdict } from "../batch/types.js";
+
+/** The range of one planned format, as exponents of two. */
+export interface ReportFormatRange {
+  format: string;
+  /** log2 of the largest finite value */
+  maxLog2: number;
+  /** log2 of the smallest normal value */
+  minNormalLog2: number;
+  /** log2 of the smallest nonzero value kept: the smallest subnormal, or the smallest normal when subnormals flush */
+  smallestLog2: number;
+  /** the plan entries stored in this format, e.g. ["activations", "gradients"] */
+  roles: string[];
+}
+
+/** One tensor's predicted magnitudes as a band on a log2 axis. */
+export interface ReportTensorBand {
+  id: string;
+  layer: string;
+  /** position of the layer in the forward order */
+  layerIndex: number;
+  /** the tensor role in words, e.g. "activation gradient" */
+  role: string;
+  /** the pass the tensor belongs to in the chart */
+  pass: "forward" | "backward";
+  /** the format it is stored in under the plan */
+  format: string;
+  /** log2 of a low quantile of the nonzero magnitudes (where footroom is measured) */
+  lowLog2: number;
+  /** log2 of the rms */
+  rmsLog2: number;
+  /** log2 of the predicted max (the level the largest element passes once in a while) */
+  highLog2: number;
+  verdict: SummaryVerdict;
+  /** the worst finding about it, one sentence; empty when it fits */
+  note: string;
+}
+
+/** One factor of the ledger. */
+export interface ReportLedgerStep {
+  layer: string;
+  rule: string;
+  log2Factor: number;
+  source: string;
+}
+
+/** The ledger of one tensor: the per-layer factors whose product is its scale. */
+export interface ReportLedger {
+  /** the tensor the ledger explains */
+  subject: string;
+  /** log2 of the tensor's rms, which the factors add up to (with the seed) */
+  rmsLog2: number;
+  steps: ReportLedgerStep[];
+}
+
+/** One finding, for the table of findings. */
+export interface ReportFinding {
+  subject: string;
+  format: string;
+  verdict: Exclude<SummaryVerdict, "fits">;
+  /** short words for the kind, e.g. "overflow" */
+  label: string;
+  value: number;
+  measure: RiskMeasure;
+  sentence: string;
+}
+
+/** The loss-scale section: the summary plus the candidates considered, when the check has them. */
+export interface ReportLossScale {
+  summary: LossScaleSummary;
+  /** one sentence per bound of the window, e.g. why scales above it overflow */
+  notes: string[];
+}
+
+/** Everything the HTML report shows. */
+export interface ReportModel {
+  /** the spec's name */
+  title: string;
+  description: string;
+  /** the spec file, as given */
+  source: string;
+  /** the evaluated precision plan's name */
+  plan: string;
+  verdict: SummaryVerdict;
+  /** the top reasons for the verdict, one sentence each */
+  reasons: string[];
+  /** the verdict of each planned format */
+  formats: { format: string; verdict: SummaryVerdict; roles: string[] }[];
+  ranges: ReportFormatRange[];
+  tensors: ReportTensorBand[];
+  lossScale: ReportLossScale;
+  /** the ledger of the worst tensor; null when there is none to show */
+  ledger: ReportLedger | null;
+  findings: ReportFinding[];
+  /** the assumptions the prediction made, one sentence each */
+  assumptions: string[];
+  /** the tool's version, printed in the footer */
+  version: string;
+}

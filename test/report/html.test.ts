@@ -1,0 +1,72 @@
+import { mkdirSync, writeFileSync } from "node:fs";
+import { describe, expect, test } from "vitest";
+import { bandDomain, escapeHtml, renderHtmlReport } from "../../src/report/html.js";
+import { demoModel, HOSTILE } from "./fixtures/demo-model.js";
+
+const OUT = new URL("./__out__/", import.meta.url);
+
+describe("escapeHtml (HTML Living Standard §13.1.2.6: & < > \" ' in text and attributes)", () => {
+  test("escapes the five characters", () => {
+    expect(escapeHtml(`<a href="x" title='y'>&</a>`)).toBe("&lt;a href=&quot;x&quot; title=&#39;y&#39;&gt;&amp;&lt;/a&gt;");
+  });
+});
+
+describe("renderHtmlReport", () => {
+  const html = renderHtmlReport(demoModel(HOSTILE));
+  mkdirSync(OUT, { recursive: true });
+  writeFileSync(new URL("demo.html", OUT), html);
+
+  test("is one self-contained document: no scripts, no external references, a CSP that forbids scripts", () => {
+    expect(html.startsWith("<!doctype html>")).toBe(true);
+    expect(html).toContain(`content="default-src 'none'; style-src 'unsafe-inline'`);
+    expect(html).not.toMatch(/<script/i);
+    expect(html).not.toMatch(/\b(?:src|href)=/i);
+    expect(html).not.toMatch(/https?:\/\/(?!www\.w3\.org\/2000\/svg)/);
+    expect(html).not.toMatch(/@import|url\((?!#)/);
+  });
+
+  test("escapes every spec-provided string", () => {
+    expect(html).not.toContain(HOSTILE);
+    expect(html).not.toContain("<b>x");
+    expect(html).toContain("&lt;script&gt;alert(1)&lt;/script&gt;&lt;b&gt;x");
+  });
+
+  test("has the verdict, both band charts, the loss-scale window, the ledger waterfall and the tables", () => {
+    expect(html).toContain('<p class="verdict-word">At risk</p>');
+    expect(html.match(/<svg class="chart band-chart"/g)).toHaveLength(2);
+    expect(html).toContain('<svg class="chart scale-chart"');
+    expect(html).toContain('<svg class="chart ledger-chart"');
+    expect(html).toContain("<figcaption>Forward pass</figcaption>");
+    expect(html).toContain("<figcaption>Backward pass</figcaption>");
+    expect(html.match(/class="range-subnormal"/g)?.length).toBe(6);
+    expect(html).toContain("not guarantees");
+  });
+
+  test("pattern ids are unique in the document", () => {
+    const ids = [...html.matchAll(/\bid="([^"]+)"/g)].map((m) => m[1]);
+    expect(new Set(ids).size).toBe(ids.length);
+  });
+
+  test("the same model gives the same bytes", () => {
+    expect(renderHtmlReport(demoModel(HOSTILE))).toBe(html);
+  });
+
+  test("labels a loss scale that was not evaluated, and an empty window with its reason", () => {
+    const notEvaluated = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-evaluated" }, notes: [] } });
+    expect(notEvaluated).toContain("<strong>Not evaluated.</strong>");
+    expect(notEvaluated).not.toContain("scale-chart");
+    const empty = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "empty", reason: "gradients <flush>" }, notes: [] } });
+    expect(empty).toContain("No static loss scale serves the whole horizon.</strong> gradients &lt;flush&gt;");
+  });
+});
+
+describe("bandDomain", () => {
+  test("takes in the bands and the binary16 edges near them, not binary32's far edges", () => {
+    const model = demoModel();
+    const [lo, hi] = bandDomain(model.tensors, model.ranges);
+    expect(lo).toBeLessThanOrEqual(-47);
+    expect(lo).toBeGreaterThan(-126);
+    expect(hi).toBeGreaterThanOrEqual(Math.log2(65504));
+    expect(hi).toBeLessThan(128);
+  });
+});
