@@ -2,7 +2,7 @@
 export { globToRegExp, hasGlob } from "./glob.js";
 export { expandInputs, pathsFromText, specFilesIn } from "./paths.js";
 export type { BatchInput, ExpandOptions, PathHost } from "./paths.js";
-export { applyVariant, parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, VaryError } from "./vary.js";
-export type { Variant, VaryAxis, VaryValue } from "./vary.js";
+export { parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, varyText, VaryError, yamlScalarText } from "./vary.js";
+export type { Variant, VariedText, VaryAxis, VaryValue } from "./vary.js";
 export { defaultWorkers, runPool } from "./pool.js";
 export type { PoolOptions, TaskOutcome } from "./pool.js";

@@ -2,8 +2,13 @@
  * Variations without writing files: `--vary KEY=V1,V2,...` sets a value in the spec document before
  * validation; several options give their cross product. KEY is a dotted path with [index] for lists,
  * e.g. `training.batch`, `layers[2].width`, `precision.activations`; values are read as YAML scalars.
+ *
+ * A variant is applied to the spec's text, not to a re-serialised document: a varied value is
+ * replaced where it stands, and a key the file leaves out is added as one line (or inside its flow
+ * map), so the spec loader's line:column positions still point into the user's file (after
+ * `originalLine` maps back the lines an added key shifted).
  */
-import { isMap, isScalar, isSeq, parse as parseYaml, type Document } from "yaml";
+import { isAlias, isMap, isScalar, isSeq, LineCounter, parse as parseYaml, parseDocument } from "yaml";
 
 /** One --vary option, parsed. */
 export interface VaryAxis {
@@ -168,57 +173,104 @@ function describePath(path: readonly (string | number)[]): string {
   return path.map((p, i) => (typeof p === "number" ? `[${p}]` : i === 0 ? p : `.${p}`)).join("") || "(the document)";
 }
 
-/**
- * Apply a variant to a copy of a parsed spec document; the original is not changed. An existing
- * scalar keeps its place in the file (so validation errors point at the line being varied); a key the
- * file leaves out is added when `schema` has a place for it. A list index past the end, a key the
- * schema does not know, or a path through a plain value is a VaryError naming the key.
- */
-export function applyVariant(doc: Document, variant: Variant, schema?: Schema): Document {
-  const copy = doc.clone();
-  for (const setting of variant.settings) setIn(copy, setting.key, setting.path, setting.value, schema);
-  return copy;
+/** A value as YAML text that reads back as the same scalar in block and flow context alike. */
+export function yamlScalarText(value: VaryValue["value"]): string {
+  if (value === null) return "null";
+  if (typeof value === "boolean") return String(value);
+  if (typeof value === "number") {
+    if (Number.isNaN(value)) return ".nan";
+    if (!Number.isFinite(value)) return value > 0 ? ".inf" : "-.inf";
+    return String(value);
+  }
+  // a JSON string is a valid YAML double-quoted scalar (YAML 1.2.2 §7.3.1)
+  return JSON.stringify(value);
 }
 
-function setIn(
-  doc: Document,
+/** One text edit: replace [start, end) with `text`. */
+interface TextEdit {
+  start: number;
+  end: number;
+  text: string;
+}
+
+/** A spec's text with a variant applied, and how to map its lines back to the original file. */
+export interface VariedText {
+  text: string;
+  /** the original file's line (1-based) for a line of the varied text */
+  originalLine: (line: number) => number;
+}
+
+/**
+ * Apply a variant to the text of a spec. Throws a VaryError naming the key for a list index past the
+ * end, a key the schema does not know (or, without a schema, a key the file does not have), a path
+ * through a plain value or an alias, or a key that holds a map or list. A text that is not valid YAML
+ * is returned unchanged: the spec loader reports its errors with their positions.
+ */
+export function varyText(text: string, variant: Variant, schema?: Schema): VariedText {
+  let current = text;
+  // line maps from each edit, applied newest first to go back to the original
+  const maps: ((line: number) => number)[] = [];
+  for (const setting of variant.settings) {
+    const counter = new LineCounter();
+    const doc = parseDocument(current, { lineCounter: counter, merge: true, uniqueKeys: true });
+    if (doc.errors.length > 0) break;
+    const edit = editFor(doc.contents, current, counter, setting.key, setting.path, setting.value, schema);
+    const editLine = counter.linePos(edit.start).line;
+    const added = countNewlines(edit.text) - countNewlines(current.slice(edit.start, edit.end));
+    current = current.slice(0, edit.start) + edit.text + current.slice(edit.end);
+    if (added !== 0) {
+      maps.push((line) => (line <= editLine ? line : line <= editLine + added ? editLine : line - added));
+    }
+  }
+  return { text: current, originalLine: (line) => maps.reduceRight((l, map) => map(l), line) };
+}
+
+function countNewlines(text: string): number {
+  let count = 0;
+  for (const c of text) if (c === "\n") count += 1;
+  return count;
+}
+
+function keyName(key: unknown): unknown {
+  return isScalar(key) ? key.value : key;
+}
+
+function editFor(
+  root: unknown,
+  text: string,
+  counter: LineCounter,
   key: string,
   path: readonly (string | number)[],
   value: VaryValue["value"],
   schema: Schema | undefined,
-): void {
-  let node: unknown = doc.contents;
+): TextEdit {
+  let node: unknown = root;
   for (let depth = 0; depth < path.length; depth++) {
     const part = path[depth]!;
     const last = depth === path.length - 1;
     const here = describePath(path.slice(0, depth));
+    if (isAlias(node)) throw new VaryError(`--vary ${key}: ${here} is an alias (*${node.source}); vary the anchored value instead`);
     if (isMap(node)) {
       if (typeof part !== "string") throw new VaryError(`--vary ${key}: ${here} is a map of keys, not a list`);
-      const pair = node.items.find((p) => (isScalar(p.key) ? p.key.value : p.key) === part);
+      const pair = node.items.find((p) => keyName(p.key) === part);
       if (!pair) {
-        if (schema && !schemaHasPath(schema, path.slice(0, depth + 1))) {
-          throw new VaryError(`--vary ${key}: the spec has no key ${describePath(path.slice(0, depth + 1))}`);
-        }
+        const missing = path.slice(0, depth + 1);
+        if (schema && !schemaHasPath(schema, missing)) throw new VaryError(`--vary ${key}: the spec has no key ${describePath(missing)}`);
         if (!schema) {
-          const keys = node.items.map((p) => String(isScalar(p.key) ? p.key.value : p.key));
-          throw new VaryError(`--vary ${key}: ${describePath(path.slice(0, depth + 1))} is not in the spec (${here} has ${keys.join(", ")})`);
+          const keys = node.items.map((p) => String(keyName(p.key)));
+          throw new VaryError(`--vary ${key}: ${describePath(missing)} is not in the spec (${here} has ${keys.join(", ")})`);
         }
-        // build the missing rest of the path as nested maps
-        let fresh: unknown = value;
+        let fresh = yamlScalarText(value);
         for (let i = path.length - 1; i > depth; i--) {
           const p = path[i]!;
-          if (typeof p === "number") throw new VaryError(`--vary ${key}: ${describePath(path.slice(0, i))} is not in the spec, so it has no item [${p}]`);
-          fresh = { [p]: fresh };
+          if (typeof p === "number") {
+            throw new VaryError(`--vary ${key}: ${describePath(path.slice(0, i))} is not in the spec, so it has no item [${p}]`);
+          }
+          fresh = `{ ${JSON.stringify(p)}: ${fresh} }`;
         }
-        node.set(doc.createNode(part), doc.createNode(fresh));
-        return;
+        return insertPair(node, text, counter, `${JSON.stringify(part)}: ${fresh}`);
       }
-      if (last) {
-        if (isScalar(pair.value)) pair.value.value = value;
-        else if (pair.value === null || pair.value === undefined) pair.value = doc.createNode(value);
-        else throw new VaryError(`--vary ${key}: ${describePath(path)} holds a map or list; --vary sets single values`);
-        return;
-      }
+      if (last) return replaceValue(pair.value, pair.key, text, key, path, value);
       node = pair.value;
       continue;
     }
@@ -228,15 +280,53 @@ function setIn(
         throw new VaryError(`--vary ${key}: ${here} has ${node.items.length} items, so there is no ${here}[${part}]`);
       }
       const item = node.items[part];
-      if (last) {
-        if (isScalar(item)) item.value = value;
-        else throw new VaryError(`--vary ${key}: ${describePath(path)} holds a map or list; --vary sets single values`);
-        return;
-      }
+      if (last) return replaceValue(item, undefined, text, key, path, value);
       node = item;
       continue;
     }
     const shown = isScalar(node) ? ` (${JSON.stringify(node.value)})` : "";
     throw new VaryError(`--vary ${key}: ${here} is a single value${shown}, so it has no ${typeof part === "number" ? `[${part}]` : part}`);
   }
+  throw new VaryError(`--vary ${key}: the key is empty`);
+}
+
+function replaceValue(
+  node: unknown,
+  keyNode: unknown,
+  text: string,
+  key: string,
+  path: readonly (string | number)[],
+  value: VaryValue["value"],
+): TextEdit {
+  if (isAlias(node)) throw new VaryError(`--vary ${key}: ${describePath(path)} is an alias (*${node.source}); vary the anchored value instead`);
+  if (node !== null && node !== undefined && !isScalar(node)) {
+    throw new VaryError(`--vary ${key}: ${describePath(path)} holds a map or list; --vary sets single values`);
+  }
+  const scalarText = yamlScalarText(value);
+  const range = isScalar(node) ? node.range : undefined;
+  if (range && range[1] > range[0]) {
+    // keep an anchor (&name) in front of the value: replace the value's own text only
+    return { start: range[0], end: range[1], text: scalarText };
+  }
+  // an empty value (`width:`): write after the key's colon
+  const keyEnd = isScalar(keyNode) && keyNode.range ? keyNode.range[1] : range?.[0];
+  if (keyEnd === undefined) throw new VaryError(`--vary ${key}: cannot find ${describePath(path)} in the text`);
+  const colon = text.indexOf(":", keyEnd);
+  const at = colon >= 0 ? colon + 1 : keyEnd;
+  return { start: at, end: at, text: ` ${scalarText}` };
+}
+
+function insertPair(map: unknown, text: string, counter: LineCounter, pairText: string): TextEdit {
+  if (!isMap(map) || !map.range) throw new VaryError(`cannot add ${pairText} here`);
+  if (map.flow) {
+    // `{ a: 1 }` → `{ a: 1, "k": v }`: before the closing brace, on the same line
+    const close = text.lastIndexOf("}", map.range[1] - 1);
+    const inside = text.slice(map.range[0] + 1, close).trim();
+    return { start: close, end: close, text: inside === "" ? ` ${pairText} ` : `, ${pairText} ` };
+  }
+  // a block map: a new line before its first key, at the same indentation
+  const first = map.items[0];
+  const keyStart = isScalar(first?.key) && first.key.range ? first.key.range[0] : map.range[0];
+  const column = counter.linePos(keyStart).col;
+  return { start: keyStart, end: keyStart, text: `${pairText}\n${" ".repeat(column - 1)}` };
 }

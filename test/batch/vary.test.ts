@@ -1,6 +1,6 @@
 import { describe, expect, test } from "vitest";
-import { parseDocument } from "yaml";
-import { applyVariant, parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, VaryError } from "../../src/batch/vary.js";
+import { parse } from "yaml";
+import { parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, varyText, VaryError, yamlScalarText } from "../../src/batch/vary.js";
 
 describe("parseKeyPath", () => {
   test.each([
@@ -97,42 +97,78 @@ describe("schemaHasPath", () => {
   });
 });
 
-describe("applyVariant", () => {
-  const doc = parseDocument(SPEC);
-  const apply = (...options: string[]) => variantsOf(options.map(parseVaryOption)).map((v) => applyVariant(doc, v, SCHEMA).toJS());
+describe("varyText", () => {
+  const vary = (text: string, ...options: string[]) =>
+    variantsOf(options.map(parseVaryOption)).map((v) => varyText(text, v, SCHEMA));
+  const js = (...options: string[]) => vary(SPEC, ...options).map((v) => parse(v.text));
 
-  test("sets existing values, one copy per variant, leaving the original alone", () => {
-    const [a, b] = apply("training.batch=8,16");
-    expect(a.training.batch).toBe(8);
-    expect(b.training.batch).toBe(16);
-    expect(doc.toJS().training.batch).toBe(32);
+  test("replaces existing values where they stand, one text per variant", () => {
+    const [a, b] = vary(SPEC, "training.batch=8,16");
+    expect(parse(a!.text).training.batch).toBe(8);
+    expect(parse(b!.text).training.batch).toBe(16);
+    expect(a!.text.split("\n")).toHaveLength(SPEC.split("\n").length);
+    expect(a!.text.split("\n")[2]).toBe("  batch: 8");
+    expect(a!.originalLine(5)).toBe(5);
   });
   test("sets list items and keys inside flow maps", () => {
-    const [v] = apply("layers[0].dense=128", "layers[2].width=5");
+    const [v] = js("layers[0].dense=128", "layers[2].width=5");
     expect(v.layers[0]).toEqual({ dense: 128 });
     expect(v.layers[2]).toMatchObject({ width: 5 });
   });
-  test("a varied scalar keeps its position in the file", () => {
-    const [variant] = variantsOf([parseVaryOption("training.batch=8")]);
-    const varied = applyVariant(doc, variant!, SCHEMA);
-    const node = varied.getIn(["training", "batch"], true) as { range: [number, number, number] };
-    expect(SPEC.slice(node.range[0], node.range[1])).toBe("32");
+  test("writes strings, infinities and booleans so they read back the same", () => {
+    const [v] = js("precision.activations=bfloat16", "name=1e-3x");
+    expect(v.precision.activations).toBe("bfloat16");
+    expect(v.name).toBe("1e-3x");
+    expect(yamlScalarText(Infinity)).toBe(".inf");
+    expect(yamlScalarText(true)).toBe("true");
+    expect(yamlScalarText("a: b, c")).toBe('"a: b, c"');
+    expect(parse(`k: ${yamlScalarText("a: b, c")}`).k).toBe("a: b, c");
   });
-  test("adds a key the file leaves to its default when the schema has a place for it", () => {
-    const [v] = apply("training.workers=4", "precision.weights=bfloat16");
-    expect(v.training.workers).toBe(4);
-    expect(v.precision).toEqual({ activations: "binary16", weights: "bfloat16" });
+  test("adds a key the file leaves to its default, and maps shifted lines back to the file", () => {
+    const [varied] = vary(SPEC, "training.workers=4");
+    const v = parse(varied!.text);
+    expect(v.training).toEqual({ workers: 4, batch: 32, loss: { kind: "cross-entropy", classes: 10 } });
+    // the new key sits on line 2; what was on line 5 (precision:) is now on line 6
+    expect(varied!.text.split("\n")[5]).toBe("precision:");
+    expect(varied!.originalLine(6)).toBe(5);
+    expect(varied!.originalLine(2)).toBe(2);
+    expect(varied!.originalLine(1)).toBe(1);
+  });
+  test("adds keys inside flow maps on the same line", () => {
+    const [varied] = vary(SPEC, "training.loss.reduction=sum");
+    expect(parse(varied!.text).training.loss).toEqual({ kind: "cross-entropy", classes: 10, reduction: "sum" });
+    expect(varied!.text.split("\n")).toHaveLength(SPEC.split("\n").length);
+  });
+  test("creates a missing section, and two keys of it in one variant", () => {
+    const text = SPEC.replace("precision:\n  activations: binary16\n", "");
+    const [varied] = vary(text, "precision.activations=bfloat16", "precision.weights=binary16");
+    expect(parse(varied!.text).precision).toEqual({ activations: "bfloat16", weights: "binary16" });
+    expect(varied!.originalLine(2)).toBe(1);
+    expect(varied!.originalLine(3)).toBe(2);
+  });
+  test("fills an empty value", () => {
+    const [varied] = vary("name:\ntraining: { batch: 1 }\n", "name=wide");
+    expect(parse(varied!.text).name).toBe("wide");
   });
   test("unknown paths are errors naming the key", () => {
-    const err = (option: string) => () => apply(option);
+    const err = (option: string) => () => vary(SPEC, option);
     expect(err("training.bacth=8")).toThrow("--vary training.bacth: the spec has no key training.bacth");
     expect(err("layers[7].width=5")).toThrow("--vary layers[7].width: layers has 3 items, so there is no layers[7]");
     expect(err("layers[1].width=5")).toThrow(/layers\[1\] is a single value \("relu"\)/);
     expect(err("training=5")).toThrow(/holds a map or list/);
     expect(err("training[0]=5")).toThrow(/is a map of keys, not a list/);
   });
+  test("refuses a path through an alias", () => {
+    const text = "base: &b { width: 8 }\nlayers:\n  - *b\n";
+    const [variant] = variantsOf([parseVaryOption("layers[0].width=4")]);
+    expect(() => varyText(text, variant!, SCHEMA)).toThrow(/is an alias \(\*b\)/);
+  });
   test("without a schema, only keys in the file can be varied", () => {
     const [variant] = variantsOf([parseVaryOption("training.workers=2")]);
-    expect(() => applyVariant(doc, variant!)).toThrow("training.workers is not in the spec (training has batch, loss)");
+    expect(() => varyText(SPEC, variant!)).toThrow("training.workers is not in the spec (training has batch, loss)");
+  });
+  test("leaves text that is not YAML alone, for the loader to report", () => {
+    const [variant] = variantsOf([parseVaryOption("training.batch=2")]);
+    expect(varyText("a: [\n", variant!, SCHEMA).text).toBe("a: [\n");
   });
 });
