@@ -53,6 +53,18 @@ export interface MagnitudeProfile {
   bound?: number;
   /** for shape "log-normal": the standard deviation of log2|x| across the elements of one draw */
   elementLog2Spread?: number;
+  /**
+   * the mean-field second moment E[x²] over all elements (zeros included), averaged over draws: the quantity the
+   * propagation rules carry (Poole et al. 2016); rms² ≈ meanSquare/(1 − zeroFraction) at the mean draw
+   */
+  meanSquare?: number;
+  /** expected largest element magnitude of one step at the median draw, from the element shape's tail and the element count */
+  maxElement?: number;
+  /**
+   * weight gradients: the rms if every summed term were aligned (coherent sum, N·rms_term instead of √N·rms_term),
+   * the upper bracket of SCIENCE.md §2.1; `rms` is the incoherent (independent signs) prediction
+   */
+  coherentRms?: number;
 }
 
 /** One factor of the chain-rule product that gives a tensor's scale (DESIGN.md: ledger). */
@@ -119,6 +131,10 @@ export interface HazardSite {
   constant?: number;
   /** one-line description in plain words */
   detail: string;
+  /** what comes out of the operation (the accumulated sum, the summed gradient), when it differs from `input` */
+  output?: MagnitudeProfile;
+  /** the same site at the end of the training horizon */
+  end?: { input: MagnitudeProfile; output?: MagnitudeProfile };
 }
 
 /** The magnitude engine's output for one spec and plan. */

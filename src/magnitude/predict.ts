@@ -1,0 +1,520 @@
+/**
+ * The magnitude engine: predicts the magnitude profile of every tensor of one training step, forward and
+ * backward, at initialisation and at the end of the training horizon (SCIENCE.md §2.10):
+ * forward second moments layer by layer (src/ops/<family>/analytic.ts), the loss seed, backward second moments,
+ * weight gradients as sums over batch and positions, the finite-width spread, and element maxima.
+ */
+import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
+import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
+import { activationMoments } from "../ops/activation/moments.js";
+import { residualBranchSeed } from "../ops/residual/analytic.js";
+import { ruleFor } from "../ops/registry.js";
+import type { Factor, Gradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
+import type { NetworkSpec } from "../spec/types.js";
+import { lossSeed } from "./loss.js";
+import { profileOf } from "./profile.js";
+import type {
+  HazardSite,
+  LedgerEntry,
+  MagnitudeProfile,
+  PlanSlot,
+  Prediction,
+  TensorPrediction,
+  TensorRole,
+} from "./types.js";
+
+/** Options of predict(). */
+export interface PredictOptions {
+  /** multiply the loss by this before the backward pass (a loss scale S multiplies every gradient by S); default 1 */
+  lossScale?: number;
+}
+
+/** A node of the ledger tree: tensors share the factors they have in common. */
+interface LedgerNode {
+  entry: LedgerEntry;
+  parent: LedgerNode | null;
+}
+
+interface TensorRecord {
+  id: string;
+  layer: string;
+  layerIndex: number;
+  family: TensorPrediction["family"];
+  role: TensorRole;
+  slot: PlanSlot;
+  shape: number[];
+  profile: MagnitudeProfile;
+  ledger: LedgerNode | null;
+}
+
+interface PhaseResult {
+  tensors: TensorRecord[];
+  hazards: { site: Omit<HazardSite, "end">; key: string }[];
+}
+
+const SLOT: Record<TensorRole, PlanSlot> = {
+  activation: "activations",
+  "pre-activation": "activations",
+  "activation-gradient": "gradients",
+  weight: "weights",
+  "weight-gradient": "gradients",
+  "optimizer-state": "optimizerStates",
+  update: "weights",
+  loss: "activations",
+};
+
+const NORMS = new Set(["layer-norm", "rms-norm", "batch-norm"]);
+
+function chain(node: LedgerNode | null, layer: string, factors: readonly Factor[], build: boolean): LedgerNode | null {
+  if (!build) return null;
+  let current = node;
+  for (const f of factors) {
+    current = {
+      entry: { layer, rule: f.rule, log2Factor: f.ratio > 0 ? 0.5 * Math.log2(f.ratio) : -Infinity, source: f.source },
+      parent: current,
+    };
+  }
+  return current;
+}
+
+function materialise(node: LedgerNode | null, profile: MagnitudeProfile): LedgerEntry[] {
+  const out: LedgerEntry[] = [];
+  for (let n = node; n !== null; n = n.parent) out.push(n.entry);
+  out.reverse();
+  // the factors above give √meanSquare; two closing entries bring it to the reported rms
+  const meanSquare = profile.meanSquare ?? 0;
+  const keep = 1 - profile.zeroFraction;
+  if (profile.zeroFraction > 0 && keep > 0 && meanSquare > 0) {
+    out.push({
+      layer: "(profile)",
+      rule: `exact zeros: the nonzero ${(keep * 100).toPrecision(3)}% carry the whole second moment`,
+      log2Factor: -0.5 * Math.log2(keep),
+      source: "definition of rms over nonzero elements",
+    });
+  }
+  const spread = profile.log2Spread;
+  if (spread > 0) {
+    const variance = (spread * 2 * Math.LN2) ** 2;
+    out.push({
+      layer: "(profile)",
+      rule: `finite width: the median draw sits e^(−V/4) below the mean, V = ${variance.toPrecision(3)}`,
+      log2Factor: -variance / 4 / Math.LN2,
+      source: "Hanin & Nica 2019, log-normal norm (SCIENCE.md §2.6)",
+    });
+  }
+  return out;
+}
+
+class Phase {
+  readonly tensors: TensorRecord[] = [];
+  readonly hazards: { site: Omit<HazardSite, "end">; key: string }[] = [];
+  readonly stash = new Map<number, unknown>();
+  readonly forwardOut = new Map<number, Signal>();
+  readonly ctx: OpContext;
+  private readonly endVariance = new Map<GraphWeight, number>();
+
+  constructor(
+    readonly graph: Graph,
+    readonly spec: NetworkSpec,
+    readonly phase: "start" | "end",
+    readonly build: boolean,
+    readonly lossScale: number,
+  ) {
+    const growth = phase === "end" ? spec.training.horizon.weightGrowth : 1;
+    const growth2 = growth * growth;
+    this.ctx = {
+      batch: graph.batch,
+      phase,
+      variance: (w) => this.endVariance.get(w) ?? w.variance * growth2,
+      moments: activationMoments,
+    };
+  }
+
+  /** Biases start at zero; at the end they are taken to have drifted as far as the layer's weights grew. */
+  private prepareWeights(layer: GraphLayer): void {
+    if (this.phase !== "end") return;
+    const growth = this.spec.training.horizon.weightGrowth;
+    const main = layer.weights[0];
+    for (const w of layer.weights) {
+      if (w.distribution === "zeros" && w !== main && main !== undefined) {
+        const mainRms = main.distribution === "constant" ? Math.abs(main.value ?? 0) : Math.sqrt(main.variance);
+        this.endVariance.set(w, (Math.max(growth - 1, 0) * mainRms) ** 2);
+      }
+    }
+  }
+
+  emit(record: TensorRecord): void {
+    this.tensors.push(record);
+  }
+
+  hazard(layer: GraphLayer, h: OpHazard, index: number): void {
+    const site: Omit<HazardSite, "end"> = {
+      kind: h.kind,
+      layer: layer.name,
+      input: profileOf(h.input, h.inputElements),
+      terms: h.terms,
+      guarded: h.guarded,
+      detail: h.detail,
+    };
+    if (h.output !== undefined) site.output = profileOf(h.output, h.outputElements ?? h.inputElements);
+    this.hazards.push({ site, key: `${layer.name}#${index}` });
+  }
+
+  weightRecords(layer: GraphLayer): void {
+    const growth = this.phase === "end" ? this.spec.training.horizon.weightGrowth : 1;
+    for (const w of layer.weights) {
+      const variance = this.ctx.variance(w);
+      let profile: MagnitudeProfile;
+      if (w.distribution === "constant") {
+        const value = Math.abs(w.value ?? 0) * growth;
+        profile = profileOf({ q: value * value, zeroFraction: value === 0 ? 1 : 0, shape: "constant", logVar: 0 }, w.elements);
+      } else {
+        const zero = variance === 0;
+        profile = profileOf(
+          {
+            q: variance,
+            zeroFraction: zero ? 1 : 0,
+            shape: w.distribution === "uniform" ? "uniform" : "gaussian",
+            logVar: 0,
+          },
+          w.elements,
+        );
+      }
+      const rule = w.init === undefined ? (w.distribution === "constant" ? "constant gain" : "zero-initialised") : `${w.init.kind} initialisation`;
+      const node =
+        this.build && profile.rms > 0
+          ? chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule: `${rule}: var = ${variance.toPrecision(4)}`, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true)
+          : null;
+      this.emit({
+        id: `${layer.name}/weight${w.name === "weight" ? "" : `:${w.name}`}`,
+        layer: layer.name,
+        layerIndex: layer.index,
+        family: layer.family,
+        role: "weight",
+        slot: "weights",
+        shape: w.shape,
+        profile,
+        ledger: node,
+      });
+    }
+  }
+
+  forward(layers: readonly GraphLayer[], input: Signal, node: LedgerNode | null): { output: Signal; node: LedgerNode | null; resets: boolean } {
+    let signal = input;
+    let current = node;
+    let resets = false;
+    for (const layer of layers) {
+      this.prepareWeights(layer);
+      const rule = ruleFor(layer.family);
+      let branchResults = {};
+      if (layer.branch !== undefined) {
+        const inner = this.forward(layer.branch, signal, current);
+        branchResults = { branchOutput: inner.output, branchResets: inner.resets };
+      }
+      const result = rule.forward(this.ctx, layer, signal, branchResults);
+      this.stash.set(layer.index, result.stash);
+      this.weightRecords(layer);
+      for (const inner of result.inner) {
+        this.emit({
+          id: `${layer.name}/${inner.role}:${inner.suffix}`,
+          layer: layer.name,
+          layerIndex: layer.index,
+          family: layer.family,
+          role: inner.role,
+          slot: "activations",
+          shape: inner.shape,
+          profile: profileOf(inner.signal, inner.elements),
+          ledger: chain(current, layer.name, inner.factors, this.build),
+        });
+      }
+      result.hazards.forEach((h, i) => this.hazard(layer, h, i));
+      current = chain(current, layer.name, result.factors, this.build);
+      signal = result.output;
+      this.forwardOut.set(layer.index, signal);
+      if (NORMS.has(layer.family) || layer.family === "embedding" || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
+      this.emit({
+        id: `${layer.name}/${result.role}`,
+        layer: layer.name,
+        layerIndex: layer.index,
+        family: layer.family,
+        role: result.role,
+        slot: "activations",
+        shape: batchShape(this.graph.batch, layer.output),
+        profile: profileOf(signal, this.graph.batch * sampleElements(layer.output)),
+        ledger: current,
+      });
+    }
+    return { output: signal, node: current, resets };
+  }
+
+  /** Walk layers backward from the gradient at their output; `seeded`: the last layer's output gradient is already reported. */
+  backward(layers: readonly GraphLayer[], output: Gradient, node: LedgerNode | null, seeded: boolean): Gradient | undefined {
+    let gradient: Gradient | undefined = output;
+    let current = node;
+    for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
+      const layer = layers[i] as GraphLayer;
+      if (!(seeded && i === layers.length - 1)) {
+        this.emit({
+          id: `${layer.name}/activation-gradient`,
+          layer: layer.name,
+          layerIndex: layer.index,
+          family: layer.family,
+          role: "activation-gradient",
+          slot: "gradients",
+          shape: batchShape(this.graph.batch, layer.output),
+          profile: profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
+          ledger: current,
+        });
+      }
+      const rule = ruleFor(layer.family);
+      let branchResults = {};
+      if (layer.branch !== undefined) {
+        const seed = residualBranchSeed(layer, gradient);
+        const branchGradient = this.backward(layer.branch, seed.gradient, chain(current, layer.name, [seed.factor], this.build), false);
+        branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
+      }
+      const result = rule.backward(this.ctx, layer, this.stash.get(layer.index), gradient, branchResults);
+      for (const inner of result.inner) {
+        this.emit({
+          id: `${layer.name}/activation-gradient:${inner.suffix}`,
+          layer: layer.name,
+          layerIndex: layer.index,
+          family: layer.family,
+          role: "activation-gradient",
+          slot: "gradients",
+          shape: inner.shape,
+          profile: profileOf(inner.gradient, inner.elements),
+          ledger: chain(current, layer.name, inner.factors, this.build),
+        });
+      }
+      for (const wg of result.weightGradients) this.weightGradient(layer, wg, current, gradient.q);
+      current = chain(current, layer.name, result.factors, this.build);
+      gradient = result.input;
+    }
+    return gradient;
+  }
+
+  /**
+   * A weight gradient after accumulation and the cross-worker reduction: the accumulated micro-batch gradients
+   * (each already divided by the accumulation steps A through the loss) add up incoherently, A·q; the workers'
+   * gradients add up the same way, W·q, and averaging divides by W (q/W²).
+   */
+  weightGradient(layer: GraphLayer, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
+    const weight = layer.weights.find((w) => w.name === wg.weight);
+    if (weight === undefined) return;
+    const training = this.spec.training;
+    const A = training.accumulationSteps;
+    const W = training.workers;
+    const averaged = training.workerGradients === "average";
+    const summedQ = wg.q * A * W;
+    const finalQ = averaged ? summedQ / (W * W) : summedQ;
+    const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
+    const base = { q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian" as const, logVar: wg.logVar };
+    const profile = profileOf({ ...base, q: finalQ }, weight.elements);
+    const keep = 1 - profile.zeroFraction;
+    profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
+    const id = `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}`;
+    const factors: Factor[] = [];
+    if (this.build) {
+      factors.push({
+        ratio: outputQ > 0 ? wg.q / outputQ : 0,
+        rule: `weight gradient: ${wg.rule}, E[g²] = N·E[x²]·E[δ²] relative to the gradient at the layer's output`,
+        source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1)",
+      });
+      if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: `${A} accumulation step(s) × ${W} worker(s), gradients ${training.workerGradients}d`, source: "independent sums add in second moment (common practice)" });
+    }
+    this.emit({
+      id,
+      layer: layer.name,
+      layerIndex: layer.index,
+      family: layer.family,
+      role: "weight-gradient",
+      slot: "gradients",
+      shape: weight.shape,
+      profile,
+      ledger: chain(node, layer.name, factors, this.build),
+    });
+    if (A * W > 1) {
+      const site: Omit<HazardSite, "end"> = {
+        kind: "gradient-sum",
+        layer: layer.name,
+        input: profileOf(base, weight.elements),
+        terms: A * W,
+        guarded: false,
+        detail: `${id}: ${A} accumulation step(s) × ${W} worker(s) summed${averaged ? `, then divided by ${W}` : ""}`,
+        output: profileOf({ ...base, q: summedQ }, weight.elements),
+      };
+      this.hazards.push({ site, key: `${id}#sum` });
+    }
+  }
+}
+
+/** Run one phase: forward, loss, backward. */
+function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build: boolean, lossScale: number): PhaseResult {
+  const p = new Phase(graph, spec, phase, build, lossScale);
+  const input = spec.input;
+  let signal: Signal;
+  let node: LedgerNode | null = null;
+  if (input.kind === "tokens") {
+    // token ids carry no magnitude: the embedding's factor is the whole scale
+    signal = { q: 1, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
+  } else {
+    const q = input.scale * input.scale;
+    signal = { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
+    node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], build);
+    p.emit({
+      id: "input/activation",
+      layer: "input",
+      layerIndex: -1,
+      family: "input",
+      role: "activation",
+      slot: "activations",
+      shape: batchShape(graph.batch, graph.input),
+      profile: profileOf(signal, graph.batch * sampleElements(graph.input)),
+      ledger: node,
+    });
+  }
+  const forward = p.forward(graph.layers, signal, node);
+
+  const training = spec.training;
+  const last = graph.layers[graph.layers.length - 1] as GraphLayer;
+  const width = graph.output.layout === "features" ? graph.output.features : graph.output.layout === "image" ? graph.output.channels : 1;
+  const positions = graph.output.layout === "image" ? sampleElements(graph.output) / width : positionCount(graph.output);
+  const seed = lossSeed(
+    training.loss,
+    forward.output,
+    graph.batch,
+    positions,
+    width,
+    lossScale / training.accumulationSteps,
+    phase,
+    training.horizon.finalLoss,
+  );
+  p.emit({
+    id: "loss/loss",
+    layer: "loss",
+    layerIndex: graph.layerCount,
+    family: "loss",
+    role: "loss",
+    slot: "activations",
+    shape: [1],
+    profile: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
+    ledger: build ? chain(null, "loss", [{ ratio: seed.value * seed.value, rule: `loss value ${seed.value.toPrecision(4)}`, source: seed.source }], true) : null,
+  });
+  if (training.loss.reduction === "sum") {
+    p.hazards.push({
+      key: "loss#sum",
+      site: {
+        kind: "loss-value",
+        layer: "loss",
+        input: profileOf({ q: seed.termValue * seed.termValue, zeroFraction: 0, shape: "constant", logVar: 0 }, seed.terms),
+        terms: seed.terms,
+        guarded: false,
+        detail: `the loss sums ${seed.terms} terms (sum reduction)`,
+        output: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
+      },
+    });
+  }
+  const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);
+  p.emit({
+    id: `${last.name}/activation-gradient`,
+    layer: last.name,
+    layerIndex: last.index,
+    family: last.family,
+    role: "activation-gradient",
+    slot: "gradients",
+    shape: batchShape(graph.batch, last.output),
+    profile: profileOf(seed.bulk.gradient, seed.bulk.elements),
+    ledger: build ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
+  });
+  if (seed.target !== undefined) {
+    p.emit({
+      id: `${last.name}/activation-gradient:target-class`,
+      layer: last.name,
+      layerIndex: last.index,
+      family: last.family,
+      role: "activation-gradient",
+      slot: "gradients",
+      shape: batchShape(graph.batch, last.output),
+      profile: profileOf(seed.target.gradient, seed.target.elements),
+      ledger: build ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
+    });
+  }
+  p.backward(graph.layers, seed.gradient, seedNode, true);
+  return { tensors: p.tensors, hazards: p.hazards };
+}
+
+function assumptions(spec: NetworkSpec): string[] {
+  const t = spec.training;
+  const list = [
+    "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass; these are estimates, so confirm them with a short run.",
+    "Weight gradients are predicted as incoherent sums over batch and positions (independent signs, rms grows as √N); coherentRms gives the aligned upper bracket (SCIENCE.md §2.1).",
+    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
+    "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
+    "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
+    "Token ids are taken as used uniformly when spreading embedding gradients over the table's rows; frequent tokens get larger rows, rare ones smaller.",
+  ];
+  if (t.accumulationSteps > 1) list.push(`Each of the ${t.accumulationSteps} accumulation steps divides its loss by ${t.accumulationSteps} (common practice), so every gradient of one backward pass is ${t.accumulationSteps} times smaller.`);
+  if (t.workers > 1) list.push(`The ${t.workers} workers' gradients are summed${t.workerGradients === "average" ? " and then divided by the worker count" : ""}; the reported weight gradient is the combined one, and the gradient-sum hazard shows the sum before any division.`);
+  if (t.horizon.finalLoss === undefined) list.push("No final loss is given, so gradients are assumed not to shrink by the end of the horizon.");
+  else if (t.loss.kind === "cross-entropy") list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${Math.exp(-t.horizon.finalLoss).toPrecision(3)}, which shrinks the output gradient (derivation in src/magnitude/loss.ts).`);
+  else list.push("At the end of the horizon the output residual's rms is √(final loss), which shrinks the output gradient by √(final loss / initial loss).");
+  if (t.horizon.weightGrowth !== 1) list.push(`Every weight's rms is multiplied by ${t.horizon.weightGrowth} at the end of the horizon, and the forward pass is recomputed with it.`);
+  return list;
+}
+
+/**
+ * Predict the magnitude profile of every tensor of one training step, at initialisation and at the end of the
+ * training horizon, with the ledger of per-layer factors and the operation hazards.
+ * @example predict(graph, spec).tensors.find((t) => t.role === "activation-gradient")?.start.rms
+ */
+export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions = {}): Prediction {
+  const lossScale = options.lossScale ?? 1;
+  if (!(lossScale > 0) || !Number.isFinite(lossScale)) throw new RangeError(`lossScale must be a finite number > 0, got ${lossScale}`);
+  const start = runPhase(graph, spec, "start", true, lossScale);
+  const end = runPhase(graph, spec, "end", false, lossScale);
+  const tensors: TensorPrediction[] = [];
+  for (let i = 0; i < start.tensors.length; i++) {
+    const a = start.tensors[i] as TensorRecord;
+    const b = end.tensors[i];
+    if (b === undefined || b.id !== a.id) throw new RangeError(`internal: start and end passes disagree at tensor ${a.id}`);
+    const tensor = {
+      id: a.id,
+      layer: a.layer,
+      layerIndex: a.layerIndex,
+      family: a.family,
+      role: a.role,
+      slot: a.slot,
+      shape: a.shape,
+      start: a.profile,
+      end: b.profile,
+      source: "predicted",
+    } as TensorPrediction;
+    let cached: LedgerEntry[] | undefined;
+    const node = a.ledger;
+    const profile = a.profile;
+    // the ledger is built on demand: materialising every tensor's chain would cost layers² for deep networks
+    Object.defineProperty(tensor, "ledger", {
+      enumerable: true,
+      configurable: true,
+      get(): LedgerEntry[] {
+        cached ??= materialise(node, profile);
+        return cached;
+      },
+      set(value: LedgerEntry[]) {
+        cached = value;
+      },
+    });
+    tensors.push(tensor);
+  }
+  const endHazards = new Map(end.hazards.map((h) => [h.key, h.site]));
+  const hazards: HazardSite[] = start.hazards.map(({ site, key }) => {
+    const other = endHazards.get(key);
+    const full: HazardSite = { ...site };
+    if (other !== undefined) {
+      full.end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
+    }
+    return full;
+  });
+  return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };
+}

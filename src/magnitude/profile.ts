@@ -1,0 +1,121 @@
+/**
+ * Turning propagated moments into magnitude profiles: the rms of the nonzero elements at the median draw, the
+ * finite-width spread of that rms, and the expected largest element from the element shape's tail and the count.
+ */
+import { maxOfNormals } from "../ops/pool/analytic.js";
+import type { OpElementShape, TailKind } from "../ops/types.js";
+import type { MagnitudeProfile } from "./types.js";
+
+/** The moments a profile is made from (a forward Signal or a backward Gradient). */
+export interface Moments {
+  q: number;
+  zeroFraction: number;
+  shape: OpElementShape;
+  logVar: number;
+  bound?: number;
+  elementLog2Spread?: number;
+  tail?: TailKind;
+}
+
+const EULER_GAMMA = 0.5772156649015329;
+
+/**
+ * Expected maximum of m independent N(0,1) values: quadrature of the order-statistic density below m = 64, the
+ * refined extreme-value expansion a − (ln ln m + ln 4π)/(2a) + γ/a with a = √(2 ln m) above (SCIENCE.md §4: within
+ * 1% of the exact value at m = 1e3).
+ */
+export function expectedMaxNormal(m: number): number {
+  if (!(m > 1)) return 0;
+  if (m < 64) {
+    const k = Math.round(m);
+    return maxOfNormals(k).m1;
+  }
+  const a = Math.sqrt(2 * Math.log(m));
+  return a - (Math.log(Math.log(m)) + Math.log(4 * Math.PI)) / (2 * a) + EULER_GAMMA / a;
+}
+
+/** Expected largest |x| over n elements of rms 1 with Gaussian magnitudes: the max of 2n normals (both signs). */
+export function expectedMaxAbsGaussian(n: number): number {
+  if (n < 1) return 0;
+  if (n < 1.5) return Math.sqrt(2 / Math.PI); // E|Z|
+  return expectedMaxNormal(2 * n);
+}
+
+/**
+ * Largest |xy| over n elements of a product of two independent unit Gaussians: the tail is
+ * P(|XY| > t) = (2/π)∫_t^∞ K0 ≈ √(2/(π t))·e^(−t) (the density of XY is K0(|z|)/π), set equal to 1/n and solved.
+ */
+export function expectedMaxAbsProduct(n: number): number {
+  if (n < 2) return expectedMaxAbsGaussian(n);
+  const target = Math.log(n);
+  let t = Math.max(target, 1);
+  for (let i = 0; i < 50; i++) {
+    // f(t) = t − ½ ln(2/(π t)) − ln n, f'(t) = 1 + 1/(2t)
+    const f = t - 0.5 * Math.log(2 / (Math.PI * t)) - target;
+    const step = f / (1 + 1 / (2 * t));
+    t -= step;
+    if (t <= 0) t = 1e-3;
+    if (Math.abs(step) < 1e-12) break;
+  }
+  return Math.max(t, expectedMaxAbsGaussian(n));
+}
+
+/** log2 of the median of a log-normal element set whose rms is `rms` and log2 spread is `spread`. */
+export function logNormalMedianLog2(rms: number, spread: number): number {
+  // log2|x| ~ N(μ, σ²) ⇒ E[x²] = 2^(2μ + 2σ² ln 2), so log2 rms = μ + σ² ln 2
+  return Math.log2(rms) - spread * spread * Math.LN2;
+}
+
+/** Expected largest element magnitude of n nonzero elements. */
+export function expectedMaxElement(m: Moments, rms: number, n: number): number {
+  if (!(rms > 0) || n < 1) return 0;
+  let max: number;
+  switch (m.shape) {
+    case "gaussian":
+    case "half-gaussian":
+      max = rms * (m.tail === "product" ? expectedMaxAbsProduct(n) : expectedMaxAbsGaussian(n));
+      break;
+    case "uniform":
+      max = rms * Math.sqrt(3) * (n / (n + 1));
+      break;
+    case "constant":
+      max = rms;
+      break;
+    case "bounded":
+      max = rms * expectedMaxAbsGaussian(n);
+      break;
+    case "log-normal": {
+      const spread = m.elementLog2Spread ?? 0;
+      max = Math.pow(2, logNormalMedianLog2(rms, spread) + spread * expectedMaxNormal(n));
+      break;
+    }
+  }
+  return m.bound !== undefined ? Math.min(max, m.bound) : max;
+}
+
+/**
+ * A magnitude profile from propagated moments over `elements` elements.
+ * rms is that of the nonzero elements at the median draw: ln of a squared norm is N(−V/2, V) relative to its mean
+ * (SCIENCE.md §2.6), so the median rms is √(q/(1 − zero)) · e^(−V/4), and the standard deviation of log2(rms) is
+ * √V/(2 ln 2).
+ */
+export function profileOf(m: Moments, elements: number): MagnitudeProfile {
+  const zeroFraction = Math.min(Math.max(m.zeroFraction, 0), 1);
+  const keep = 1 - zeroFraction;
+  const logVar = Math.max(m.logVar, 0);
+  const meanRms = keep > 0 && m.q > 0 ? Math.sqrt(m.q / keep) : 0;
+  let rms = meanRms * Math.exp(-logVar / 4);
+  if (m.bound !== undefined && rms > m.bound) rms = m.bound;
+  const profile: MagnitudeProfile = {
+    elements,
+    zeroFraction,
+    shape: m.shape,
+    rms,
+    log2Spread: Math.sqrt(logVar) / (2 * Math.LN2),
+    meanSquare: m.q,
+    maxElement: expectedMaxElement(m, rms, elements * keep),
+  };
+  if (m.bound !== undefined) profile.bound = m.bound;
+  if (m.shape === "log-normal") profile.elementLog2Spread = m.elementLog2Spread ?? 0;
+  return profile;
+}

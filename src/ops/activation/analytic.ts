@@ -1,0 +1,180 @@
+/**
+ * Pointwise activations: forward E[φ(z)²] and backward E[φ'(z)²] for z ~ N(0, q) (Poole et al. 2016;
+ * Schoenholz et al. 2017), with the exact zeros of rectifiers and the bounds of tanh and sigmoid.
+ * Softmax over the feature axis: probabilities are log-normal, p_j ≈ e^(z_j)/(n·e^(q/2)) for n features
+ * (a log-normal sum approximation, good when e^q ≪ n), so E[p²] ≈ min(e^q/n², 1/n).
+ */
+import { featureWidth, sampleElements } from "../../graph/shape.js";
+import type { GraphLayer } from "../../graph/types.js";
+import type { ActivationLayer, ActivationName } from "../../spec/types.js";
+import { SOURCES, factor, fmt } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
+import { activationKappa } from "./moments.js";
+
+/** What the activation backward rule needs. */
+export interface ActivationStash {
+  input: Signal;
+  /** E[φ'²] over all elements (zeros of the input included) */
+  derivativeSecond: number;
+  /** share of input elements where φ' = 0 (a ReLU's negative half) */
+  derivativeZeroFraction: number;
+  kappaBackward: number;
+  /** softmax: E[p²] */
+  probabilitySecond?: number;
+}
+
+const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017; SCIENCE.md §2.9)";
+const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^q/n², 1/n) (derived; SCIENCE.md §2.10)";
+
+/** φ(0) and φ'(0) for the zero elements of an input (ReLU'(0) = 0 as implementations define it). */
+function atZero(name: ActivationName, slope: number): [number, number] {
+  switch (name) {
+    case "relu":
+      return [0, 0];
+    case "leaky-relu":
+      return [0, slope];
+    case "gelu":
+    case "silu":
+      return [0, 0.5];
+    case "tanh":
+    case "identity":
+      return [0, 1];
+    case "sigmoid":
+      return [0.5, 0.25];
+    case "softplus":
+      return [Math.LN2, 0.5];
+    case "softmax":
+      return [0, 0];
+  }
+}
+
+/** Element shape of φ's output. */
+function outputShape(name: ActivationName, input: Signal): { shape: OpElementShape; bound?: number } {
+  switch (name) {
+    case "relu":
+      return { shape: "half-gaussian" };
+    case "tanh":
+    case "sigmoid":
+      return { shape: "bounded", bound: 1 };
+    case "identity":
+      return input.bound === undefined ? { shape: input.shape } : { shape: input.shape, bound: input.bound };
+    default:
+      return { shape: "gaussian" };
+  }
+}
+
+/**
+ * Forward rule of a pointwise activation on a (near-)Gaussian tensor; exported for gated feed-forward layers.
+ * Zeros of the input (dropout, an earlier ReLU) are mapped through φ(0).
+ */
+export function pointwiseForward(
+  ctx: OpContext,
+  name: ActivationName,
+  slope: number,
+  input: Signal,
+): { output: Signal; stash: ActivationStash; ratio: number; rule: string } {
+  const keep = 1 - input.zeroFraction;
+  const qNonzero = keep > 0 ? input.q / keep : 0;
+  const m = ctx.moments(name, qNonzero, slope);
+  const [f0, d0] = atZero(name, slope);
+  const q = keep * m.second + input.zeroFraction * f0 * f0;
+  const mean = keep * m.mean + input.zeroFraction * f0;
+  const derivativeSecond = keep * m.derivativeSecond + input.zeroFraction * d0 * d0;
+  const zeroFraction = (f0 === 0 ? input.zeroFraction : 0) + keep * m.zeroFraction;
+  const kappa = activationKappa(m);
+  let logVar = input.logVar;
+  if (input.fresh !== undefined) logVar = Math.max(logVar + (kappa.forward - input.fresh.kappa) / input.fresh.width, 0);
+  const { shape, bound } = outputShape(name, input);
+  const output: Signal = { q, mean, zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
+  if (bound !== undefined) output.bound = bound;
+  if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
+  const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
+  return {
+    output,
+    stash: { input, derivativeSecond, derivativeZeroFraction, kappaBackward: kappa.backward },
+    ratio: input.q > 0 ? q / input.q : 0,
+    rule: `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
+  };
+}
+
+/** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
+export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient): { gradient: Gradient; ratio: number; rule: string } {
+  let logVar = output.logVar;
+  if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
+  const zeroFraction = 1 - (1 - stash.derivativeZeroFraction) * (1 - output.zeroFraction);
+  return {
+    gradient: { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar },
+    ratio: stash.derivativeSecond,
+    rule: `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`,
+  };
+}
+
+export const activationRule: AnalyticRule<ActivationStash> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {
+    const spec = layer.spec as ActivationLayer;
+    if (spec.activation === "softmax") return softmaxForward(ctx, layer, input);
+    const result = pointwiseForward(ctx, spec.activation, spec.slope, input);
+    return {
+      output: result.output,
+      factors: [factor(result.ratio, result.rule, SOURCE)],
+      role: "activation",
+      inner: [],
+      hazards: [],
+      stash: result.stash,
+    };
+  },
+  backward(_ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
+    const spec = layer.spec as ActivationLayer;
+    if (stash.probabilitySecond !== undefined) {
+      // softmax Jacobian diag(p) − p pᵀ: δ_in,j = p_j(δ_j − Σ p_k δ_k), so E[δ_in²] ≈ E[p²]·E[δ²]
+      const ratio = stash.probabilitySecond;
+      return {
+        input: { q: ratio * output.q, zeroFraction: output.zeroFraction, shape: "gaussian", logVar: output.logVar },
+        factors: [factor(ratio, `softmax: E[p²] = ${fmt(ratio)}`, SOFTMAX_SOURCE)],
+        inner: [],
+        weightGradients: [],
+      };
+    }
+    const result = pointwiseBackward(spec.activation, stash, output);
+    return { input: result.gradient, factors: [factor(result.ratio, result.rule, SOURCES.backward)], inner: [], weightGradients: [] };
+  },
+};
+
+/** Softmax probabilities over n entries from logits of variance q: second moment, spread and rms. */
+export function softmaxMoments(q: number, n: number): { second: number; elementLog2Spread: number } {
+  const second = Math.min(Math.exp(q) / (n * n), 1 / n);
+  return { second, elementLog2Spread: Math.sqrt(q) / Math.LN2 };
+}
+
+function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {
+  const n = featureWidth(layer.input);
+  const logitVariance = Math.max(input.q - input.mean * input.mean, 0);
+  const { second, elementLog2Spread } = softmaxMoments(logitVariance, n);
+  const output: Signal = {
+    q: second,
+    mean: 1 / n,
+    zeroFraction: 0,
+    shape: "log-normal",
+    elementLog2Spread,
+    bound: 1,
+    logVar: 0,
+    gaussian: false,
+  };
+  return {
+    output,
+    factors: [factor(input.q > 0 ? second / input.q : 0, `softmax over ${n}: E[p²] = ${fmt(second)} at logit variance ${fmt(logitVariance)}`, SOFTMAX_SOURCE)],
+    role: "activation",
+    inner: [],
+    hazards: [
+      {
+        kind: "softmax-exp",
+        input,
+        inputElements: ctx.batch * sampleElements(layer.input),
+        terms: n,
+        guarded: true,
+        detail: `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
+      },
+    ],
+    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, probabilitySecond: second },
+  };
+}

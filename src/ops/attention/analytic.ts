@@ -1,0 +1,334 @@
+/**
+ * Multi-head self-attention on a features input x [positions P, width D], heads H of width d:
+ *   q, k, v = x·W (each D → H·d): E[q²] = fan_in·var_w·E[x²] (Poole et al. 2016);
+ *   logits s = q·k·c with c = 1/√d (scaling "query" or "logits") or 1 ("none"): Var[s] = d·E[q²]·E[k²]·c²,
+ *     so unit q and k give variance d unscaled and 1 scaled (Vaswani et al. 2017, §3.2.1 footnote 4);
+ *   probabilities p = softmax over the n keys of a row, log-normal: E[p²] ≈ min(e^Var[s]/n², 1/n);
+ *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·Σ_j p_j², which is E[v²]/P for uniform attention over P keys and
+ *     E[v²]·H_P/P under a causal mask (H_P the harmonic number: row i attends to i keys);
+ *   output = o·W_o (H·d → D).
+ * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²].
+ * The query and key gradients carry Σ_j p_j², so they are small while attention is spread out.
+ */
+import type { GraphLayer } from "../../graph/types.js";
+import type { AttentionLayer } from "../../spec/types.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, sumLogVar, weightOf } from "../common.js";
+import type {
+  AnalyticRule,
+  BackwardResult,
+  Factor,
+  ForwardResult,
+  Gradient,
+  InnerGradient,
+  InnerTensor,
+  OpContext,
+  OpHazard,
+  Signal,
+  WeightGradientMoment,
+} from "../types.js";
+
+const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q²]·E[k²]";
+const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^Var[s]/n², 1/n) (derived; SCIENCE.md §2.10)";
+const AVERAGE_SOURCE = "attention average: E[o²] = E[v²]·Σ_j p_j² (uniform 1/P; causal H_P/P)";
+
+/** Sums over the rows of an attention matrix (memoised by positions, causal and logit variance). */
+interface RowSums {
+  /** mean over rows of Σ_j E[p_ij²] */
+  sumSquares: number;
+  /** E[p²] over the unmasked elements */
+  elementSecond: number;
+  /** unmasked elements per row on average */
+  keys: number;
+  /** spread of log2(1/n) over unmasked elements (different row lengths under a causal mask) */
+  rowLog2Variance: number;
+}
+
+const rowCache = new Map<string, RowSums>();
+
+function harmonic(n: number): number {
+  if (n <= 0) return 0;
+  if (n < 64) {
+    let h = 0;
+    for (let i = 1; i <= n; i++) h += 1 / i;
+    return h;
+  }
+  // Euler–Maclaurin: H_n = ln n + γ + 1/(2n) − 1/(12n²) + 1/(120n⁴)
+  return Math.log(n) + 0.5772156649015329 + 1 / (2 * n) - 1 / (12 * n * n) + 1 / (120 * n ** 4);
+}
+
+/** Row sums of E[p²] for P positions at logit variance s2, full or causal. */
+export function attentionRowSums(positions: number, causal: boolean, s2: number): RowSums {
+  const key = `${positions}|${causal}|${s2}`;
+  const hit = rowCache.get(key);
+  if (hit !== undefined) return hit;
+  const spread = Math.exp(s2);
+  let result: RowSums;
+  if (!causal) {
+    const perRow = Math.min(spread / positions, 1);
+    result = { sumSquares: perRow, elementSecond: perRow / positions, keys: positions, rowLog2Variance: 0 };
+  } else {
+    // row i (1-based) attends to i keys: Σ_j p² = min(e^s2/i, 1)
+    const full = Math.min(Math.floor(spread), positions); // rows short enough to be (near) one-hot
+    const total = full + spread * (harmonic(positions) - harmonic(full));
+    const unmasked = (positions * (positions + 1)) / 2;
+    // spread of log2 i over unmasked elements, weighted by row length i
+    let m1 = 0;
+    let m2 = 0;
+    if (positions <= 4096) {
+      for (let i = 1; i <= positions; i++) {
+        const l = Math.log2(i);
+        m1 += i * l;
+        m2 += i * l * l;
+      }
+      m1 /= unmasked;
+      m2 /= unmasked;
+    } else {
+      // continuous limit: density ∝ i on [0, P]: E[ln i] = ln P − ½, Var[ln i] = ¼
+      m1 = (Math.log(positions) - 0.5) / Math.LN2;
+      m2 = m1 * m1 + 0.25 / (Math.LN2 * Math.LN2);
+    }
+    result = {
+      sumSquares: total / positions,
+      elementSecond: total / unmasked,
+      keys: unmasked / positions,
+      rowLog2Variance: Math.max(m2 - m1 * m1, 0),
+    };
+  }
+  if (rowCache.size > 10_000) rowCache.clear();
+  rowCache.set(key, result);
+  return result;
+}
+
+/** What the attention backward rule needs. */
+export interface AttentionStash {
+  input: Signal;
+  query: Signal;
+  key: Signal;
+  value: Signal;
+  heads: Signal;
+  rows: RowSums;
+  /** c² where s = c·(q·k) */
+  scale2: number;
+  headWidth: number;
+}
+
+function shapes(ctx: OpContext, layer: GraphLayer) {
+  const spec = layer.spec as AttentionLayer;
+  const P = layer.input.layout === "features" ? layer.input.positions : 1;
+  const inner = spec.heads * spec.headWidth;
+  const projection = [ctx.batch, P, inner];
+  const matrix = [ctx.batch, spec.heads, P, P];
+  const matrixElements = ctx.batch * spec.heads * P * P;
+  return { spec, P, inner, projection, projectionElements: ctx.batch * P * inner, matrix, matrixElements };
+}
+
+export const attentionRule: AnalyticRule<AttentionStash> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<AttentionStash> {
+    const { spec, P, inner, projection, projectionElements, matrix, matrixElements } = shapes(ctx, layer);
+    const D = layer.input.layout === "features" ? layer.input.features : 1;
+    const d = spec.headWidth;
+    const project = (name: string): { signal: Signal; gain: number } => {
+      const w = weightOf(layer, name);
+      const gain = ctx.variance(w) * w.fanIn;
+      return { signal: linearOutput(gain * input.q, input.logVar, inner), gain };
+    };
+    const query = project("query");
+    const key = project("key");
+    const value = project("value");
+    const scale2 = spec.scaling === "none" ? 1 : 1 / d;
+    const rawVariance = d * query.signal.q * key.signal.q;
+    const logitVariance = rawVariance * scale2;
+    const logits: Signal = {
+      q: logitVariance,
+      mean: 0,
+      zeroFraction: 0,
+      shape: "gaussian",
+      logVar: sumLogVar(query.signal.q, query.signal.logVar, key.signal.q, key.signal.logVar, 1) * 4,
+      gaussian: true,
+    };
+    const rows = attentionRowSums(P, spec.causal, logitVariance);
+    const probabilities: Signal = {
+      q: rows.elementSecond * (spec.causal ? rows.keys / P : 1),
+      mean: 1 / P,
+      zeroFraction: spec.causal ? (P - 1) / (2 * P) : 0,
+      shape: "log-normal",
+      elementLog2Spread: Math.sqrt(logitVariance / (Math.LN2 * Math.LN2) + rows.rowLog2Variance),
+      bound: 1,
+      logVar: 0,
+      gaussian: false,
+    };
+    const heads: Signal = { q: value.signal.q * rows.sumSquares, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: value.signal.logVar, gaussian: true };
+    const wo = weightOf(layer, "output");
+    const outGain = ctx.variance(wo) * wo.fanIn;
+    const output = linearOutput(outGain * heads.q, heads.logVar, D);
+
+    const qFactor = (gain: number, name: string): Factor => factor(gain, `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
+    const logitFactor = factor(
+      query.signal.q > 0 ? logitVariance / query.signal.q : 0,
+      `attention logits: d·E[k²]·c² = ${d}·${fmt(key.signal.q)}·${fmt(scale2)}`,
+      SOURCE,
+    );
+    const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
+    const headFactor = factor(rows.sumSquares, `attention average: Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}`, AVERAGE_SOURCE);
+    const outFactor = factor(outGain, `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
+
+    const inner_: InnerTensor[] = [
+      { suffix: "query", role: "pre-activation", shape: projection, elements: projectionElements, signal: query.signal, factors: [qFactor(query.gain, "query")] },
+      { suffix: "key", role: "pre-activation", shape: projection, elements: projectionElements, signal: key.signal, factors: [qFactor(key.gain, "key")] },
+      { suffix: "value", role: "pre-activation", shape: projection, elements: projectionElements, signal: value.signal, factors: [qFactor(value.gain, "value")] },
+      {
+        suffix: "logits",
+        role: "pre-activation",
+        shape: matrix,
+        elements: spec.causal ? (ctx.batch * spec.heads * P * (P + 1)) / 2 : matrixElements,
+        signal: logits,
+        factors: [qFactor(query.gain, "query"), logitFactor],
+      },
+      {
+        suffix: "probabilities",
+        role: "activation",
+        shape: matrix,
+        elements: matrixElements,
+        signal: probabilities,
+        factors: [qFactor(query.gain, "query"), logitFactor, probFactor],
+      },
+      { suffix: "heads", role: "activation", shape: projection, elements: projectionElements, signal: heads, factors: [qFactor(value.gain, "value"), headFactor] },
+    ];
+
+    const accumulated: Signal = { ...logits, q: rawVariance * (spec.scaling === "query" ? scale2 : 1) };
+    const hazards: OpHazard[] = [
+      {
+        kind: "accumulation",
+        input: { ...query.signal, q: query.signal.q * key.signal.q * (spec.scaling === "query" ? scale2 : 1) },
+        inputElements: matrixElements * d,
+        output: accumulated,
+        outputElements: matrixElements,
+        terms: d,
+        guarded: false,
+        detail:
+          spec.scaling === "logits"
+            ? `query·key summed over head width ${d} before the 1/√${d} scaling`
+            : spec.scaling === "query"
+              ? `query·key summed over head width ${d}, query pre-scaled by 1/√${d}`
+              : `query·key summed over head width ${d}, never scaled`,
+      },
+      {
+        kind: "softmax-exp",
+        input: logits,
+        inputElements: matrixElements,
+        terms: P,
+        guarded: spec.subtractMax,
+        detail: `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}`,
+      },
+      {
+        kind: "accumulation",
+        input: { ...value.signal, q: value.signal.q * rows.elementSecond },
+        inputElements: matrixElements * d,
+        output: heads,
+        outputElements: projectionElements,
+        terms: Math.round(rows.keys),
+        guarded: false,
+        detail: `probability-weighted values summed over ${fmt(rows.keys)} keys`,
+      },
+      {
+        kind: "accumulation",
+        input: { ...heads, q: heads.q * ctx.variance(wo) },
+        inputElements: projectionElements * D,
+        output,
+        outputElements: ctx.batch * P * D,
+        terms: inner,
+        guarded: false,
+        detail: `output projection summed over ${inner} inputs`,
+      },
+    ];
+    return {
+      output,
+      factors: [qFactor(value.gain, "value"), headFactor, outFactor],
+      role: "activation",
+      inner: inner_,
+      hazards,
+      stash: { input, query: query.signal, key: key.signal, value: value.signal, heads, rows, scale2, headWidth: d },
+    };
+  },
+
+  backward(ctx: OpContext, layer: GraphLayer, stash: AttentionStash, output: Gradient): BackwardResult {
+    const { P, inner, projection, projectionElements, matrix, matrixElements, spec } = shapes(ctx, layer);
+    const d = stash.headWidth;
+    const wo = weightOf(layer, "output");
+    const wq = weightOf(layer, "query");
+    const wk = weightOf(layer, "key");
+    const wv = weightOf(layer, "value");
+    const outGain = ctx.variance(wo) * wo.fanOut;
+    const headsQ = outGain * output.q;
+    const heads = linearGradient(headsQ, output.logVar, inner);
+    const valueQ = headsQ * stash.rows.sumSquares;
+    const probQ = d * headsQ * stash.value.q;
+    const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
+    const logitQ = stash.rows.elementSecond * probQ * unmaskedShare;
+    const queryQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * stash.key.q;
+    const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * stash.query.q;
+    const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
+    const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
+    const headFactor = factor(outGain, `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
+    const probFactor = factor(d * stash.value.q, `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
+    const logitFactor = factor(stash.rows.elementSecond * unmaskedShare, `softmax Jacobian: E[p²] = ${fmt(stash.rows.elementSecond)}`, SOFTMAX_SOURCE);
+    const innerGradients: InnerGradient[] = [
+      { suffix: "heads", shape: projection, elements: projectionElements, gradient: heads, factors: [headFactor] },
+      {
+        suffix: "probabilities",
+        shape: matrix,
+        elements: matrixElements,
+        gradient: g(probQ),
+        factors: [headFactor, probFactor],
+      },
+      { suffix: "logits", shape: matrix, elements: matrixElements, gradient: g(logitQ, zeroMasked), factors: [headFactor, probFactor, logitFactor] },
+      {
+        suffix: "query",
+        shape: projection,
+        elements: projectionElements,
+        gradient: g(queryQ),
+        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), `attention query: Σp²·d·c²·E[v²]·E[k²] = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+      },
+      {
+        suffix: "key",
+        shape: projection,
+        elements: projectionElements,
+        gradient: g(keyQ),
+        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), `attention key: Σp²·d·c²·E[v²]·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+      },
+      {
+        suffix: "value",
+        shape: projection,
+        elements: projectionElements,
+        gradient: g(valueQ),
+        factors: [headFactor, factor(stash.rows.sumSquares, `attention value: Σ_i p_ij² = ${fmt(stash.rows.sumSquares)}`, AVERAGE_SOURCE)],
+      },
+    ];
+    const inputQ = ctx.variance(wq) * wq.fanOut * queryQ + ctx.variance(wk) * wk.fanOut * keyQ + ctx.variance(wv) * wv.fanOut * valueQ;
+    const N = ctx.batch * P;
+    const wg = (weight: string, x: number, delta: number, logVar: number): WeightGradientMoment => ({
+      weight,
+      q: N * x * delta,
+      coherentQ: N * N * x * delta,
+      terms: N,
+      zeroFraction: 0,
+      logVar,
+      rule: `sum of ${N} products (batch × positions) of input and gradient`,
+    });
+    const D = layer.input.layout === "features" ? layer.input.features : 1;
+    return {
+      input: linearGradient(inputQ, heads.logVar, D),
+      factors: [
+        headFactor,
+        factor(headsQ > 0 ? inputQ / headsQ : 0, `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward),
+      ],
+      inner: innerGradients,
+      weightGradients: [
+        wg("query", stash.input.q, queryQ, stash.input.logVar + heads.logVar),
+        wg("key", stash.input.q, keyQ, stash.input.logVar + heads.logVar),
+        wg("value", stash.input.q, valueQ, stash.input.logVar + heads.logVar),
+        wg("output", stash.heads.q, output.q, stash.heads.logVar + output.logVar),
+      ],
+    };
+  },
+};

@@ -1,0 +1,71 @@
+/** Helpers shared by the analytic rules of several layer families. */
+import type { GraphLayer, GraphWeight } from "../graph/types.js";
+import type { Factor, Gradient, Signal } from "./types.js";
+
+/** Sources cited by more than one rule. */
+export const SOURCES = {
+  lengthMap: "Poole et al. 2016, length map (SCIENCE.md §2.1)",
+  backward: "Schoenholz et al. 2017, backward recursion (SCIENCE.md §2.1)",
+  weightGradient: "sum over batch and positions of input × gradient, independent signs (SCIENCE.md §2.1)",
+  finiteWidth: "Hanin & Nica 2019, log-normal norm with variance κ·Σ1/width (SCIENCE.md §2.6)",
+} as const;
+
+/** κ of a linear map's squared norm: Var[g²]/E[g²]² = 2 for Gaussian g (SCIENCE.md §2.6). */
+export const LINEAR_KAPPA = 2;
+
+/** A ledger factor. */
+export function factor(ratio: number, rule: string, source: string): Factor {
+  return { ratio, rule, source };
+}
+
+/** The named weight of a layer; throws when the graph lacks it (a graph builder bug, not user input). */
+export function weightOf(layer: GraphLayer, name: string): GraphWeight {
+  const found = layer.weights.find((w) => w.name === name);
+  if (found === undefined) throw new RangeError(`layer ${layer.name} has no weight "${name}"`);
+  return found;
+}
+
+/** The named weight, or undefined (optional biases). */
+export function maybeWeight(layer: GraphLayer, name: string): GraphWeight | undefined {
+  return layer.weights.find((w) => w.name === name);
+}
+
+/** Format a number for a ledger rule: 4 significant digits, exponent form when far from 1. */
+export function fmt(value: number): string {
+  if (value === 0 || !Number.isFinite(value)) return String(value);
+  const a = Math.abs(value);
+  return a >= 1e4 || a < 1e-3 ? value.toExponential(3) : Number(value.toPrecision(4)).toString();
+}
+
+/** A zero-mean Gaussian tensor made by a random linear map of the given output width. */
+export function linearOutput(q: number, logVar: number, width: number): Signal {
+  return {
+    q,
+    mean: 0,
+    zeroFraction: 0,
+    shape: "gaussian",
+    logVar: logVar + LINEAR_KAPPA / width,
+    fresh: { width, kappa: LINEAR_KAPPA },
+    gaussian: true,
+  };
+}
+
+/** A dense Gaussian gradient made by a transposed random linear map into the given width. */
+export function linearGradient(q: number, logVar: number, width: number): Gradient {
+  return { q, zeroFraction: 0, shape: "gaussian", logVar: logVar + LINEAR_KAPPA / width, fresh: { width, kappa: LINEAR_KAPPA } };
+}
+
+/**
+ * The finite-width variance of a sum a + b of two tensors whose second moments are qa and qb, where b was
+ * computed from a (so b's log-variance already contains `shared` of a's): linearise ln‖a+b‖² around the means.
+ * Spread along a skip path is not re-accumulated (Hanin & Rolnick 2018): only the branch's own part is added,
+ * weighted by its share of the sum, squared.
+ */
+export function sumLogVar(qa: number, va: number, qb: number, vb: number, shared: number): number {
+  const total = qa + qb;
+  if (!(total > 0)) return va;
+  const wa = qa / total;
+  const wb = qb / total;
+  const own = Math.max(vb - shared * va, 0);
+  return (wa + wb * shared) ** 2 * va + wb * wb * own;
+}

@@ -1,0 +1,102 @@
+/**
+ * Dense layer, y = W x + b with W [out, in]: forward q_out = fan_in·var_w·E[x²] + var_b (Poole et al. 2016),
+ * backward E[δ_in²] = fan_out·var_w·E[δ_out²] (Schoenholz et al. 2017), weight gradient a sum of
+ * batch × positions products of input and gradient.
+ */
+import { positionCount } from "../../graph/shape.js";
+import type { GraphLayer } from "../../graph/types.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, maybeWeight, weightOf } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+
+/** What the dense backward rule needs from the forward pass. */
+export interface DenseStash {
+  input: Signal;
+  output: Signal;
+}
+
+export const denseRule: AnalyticRule<DenseStash> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<DenseStash> {
+    return linearForward(ctx, layer, input, "dense");
+  },
+  backward(ctx: OpContext, layer: GraphLayer, stash: DenseStash, output: Gradient): BackwardResult {
+    const w = weightOf(layer, "weight");
+    const gain = ctx.variance(w) * w.fanOut;
+    const inWidth = w.fanIn;
+    return linearBackward(ctx, layer, stash, output, gain, `dense: fan_out·var_w = ${fmt(gain)}`, inWidth);
+  },
+};
+
+/** Forward rule shared by dense and conv2d (conv's fan-in is in-channels × k²). */
+export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, kind: string): ForwardResult<DenseStash> {
+  const w = weightOf(layer, "weight");
+  const bias = maybeWeight(layer, "bias");
+  const variance = ctx.variance(w);
+  const biasVariance = bias === undefined ? 0 : ctx.variance(bias);
+  const gain = variance * w.fanIn;
+  const q = gain * input.q + biasVariance;
+  const outWidth = w.shape[0] ?? 1;
+  const output = linearOutput(q, input.logVar, outWidth);
+  const ratio = input.q > 0 ? q / input.q : 0;
+  const rule = `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
+  const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
+  return {
+    output,
+    factors: [factor(ratio, rule, SOURCES.lengthMap)],
+    role: "pre-activation",
+    inner: [],
+    hazards: [
+      {
+        kind: "accumulation",
+        input: { ...input, q: input.q * variance, mean: 0, shape: "gaussian", zeroFraction: input.zeroFraction, gaussian: true },
+        inputElements: ctx.batch * perSample * w.fanIn,
+        output,
+        outputElements: ctx.batch * perSample,
+        terms: w.fanIn,
+        guarded: false,
+        detail: `${kind} products summed over ${w.fanIn} inputs per output`,
+      },
+    ],
+    stash: { input, output },
+  };
+}
+
+/** Backward rule shared by dense and conv2d: δ_in = Wᵀ δ_out, plus the weight and bias gradients. */
+export function linearBackward(
+  ctx: OpContext,
+  layer: GraphLayer,
+  stash: DenseStash,
+  output: Gradient,
+  gain: number,
+  rule: string,
+  inWidth: number,
+): BackwardResult {
+  const terms = ctx.batch * positionCount(layer.output);
+  const weightGradients: WeightGradientMoment[] = [
+    {
+      weight: "weight",
+      q: terms * stash.input.q * output.q,
+      coherentQ: terms * terms * stash.input.q * output.q,
+      terms,
+      zeroFraction: 0,
+      logVar: stash.input.logVar + output.logVar,
+      rule: `sum of ${terms} products (batch × positions) of input and gradient`,
+    },
+  ];
+  if (maybeWeight(layer, "bias") !== undefined) {
+    weightGradients.push({
+      weight: "bias",
+      q: terms * output.q,
+      coherentQ: terms * terms * output.q,
+      terms,
+      zeroFraction: 0,
+      logVar: output.logVar,
+      rule: `sum of ${terms} gradients (batch × positions)`,
+    });
+  }
+  return {
+    input: linearGradient(gain * output.q, output.logVar, inWidth),
+    factors: [factor(gain, rule, SOURCES.backward)],
+    inner: [],
+    weightGradients,
+  };
+}

@@ -1,0 +1,61 @@
+/**
+ * Embedding lookup: each output row is a row of the table times the multiplier, so E[x²] = var_table·multiplier²
+ * whatever the token. There is no gradient for token ids. The table's gradient is sparse: with N = batch ×
+ * positions lookups spread uniformly over V rows, λ = N/V lookups land on a row on average, a share e^(−λ) of the
+ * rows gets none (exact zeros), and a touched row sums its lookups' gradients (Poisson occupancy; uniform token
+ * use is an assumption: rare tokens get fewer, so their rows are smaller still).
+ */
+import type { GraphLayer } from "../../graph/types.js";
+import type { EmbeddingLayer } from "../../spec/types.js";
+import { factor, fmt, weightOf } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+
+const SOURCE = "embedding rows: table variance × multiplier² (definition of the layer)";
+
+export const embeddingRule: AnalyticRule<null> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
+    const spec = layer.spec as EmbeddingLayer;
+    const table = weightOf(layer, "table");
+    const q = ctx.variance(table) * spec.multiplier * spec.multiplier;
+    const zero = table.distribution === "zeros";
+    const output: Signal = {
+      q,
+      mean: 0,
+      zeroFraction: zero ? 1 : 0,
+      shape: table.distribution === "uniform" ? "uniform" : "gaussian",
+      logVar: 0,
+      gaussian: table.distribution === "normal",
+    };
+    return {
+      output,
+      factors: [factor(input.q > 0 ? q / input.q : q, `embedding: var_table·multiplier² = ${fmt(ctx.variance(table))}·${fmt(spec.multiplier ** 2)}`, SOURCE)],
+      role: "activation",
+      inner: [],
+      hazards: [],
+      stash: null,
+    };
+  },
+  backward(ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
+    const spec = layer.spec as EmbeddingLayer;
+    const lookups = ctx.batch * (layer.input.layout === "tokens" ? layer.input.positions : 1);
+    const lambda = lookups / spec.vocabulary;
+    const m2 = spec.multiplier * spec.multiplier;
+    return {
+      factors: [],
+      inner: [],
+      weightGradients: [
+        {
+          weight: "table",
+          // over all V·width elements: Σ_rows count_r·E[δ²]·m² / V = λ·m²·E[δ²]
+          q: lambda * m2 * output.q,
+          // coherent: a touched row's lookups all aligned, E[count²] = λ + λ² per row
+          coherentQ: (lambda + lambda * lambda) * m2 * output.q,
+          terms: lookups,
+          zeroFraction: Math.exp(-lambda),
+          logVar: output.logVar,
+          rule: `${fmt(lambda)} lookups per row on average (${lookups} lookups over ${spec.vocabulary} rows)`,
+        },
+      ],
+    };
+  },
+};

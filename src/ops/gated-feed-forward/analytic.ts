@@ -1,0 +1,158 @@
+/**
+ * Gated feed-forward, out = W_down·(φ(W_gate·x) ⊙ W_up·x): gate and up are Gaussian pre-activations
+ * (Poole et al. 2016), the product has E[h²] = E[φ(g)²]·E[u²] for independent gate and up (at initialisation the
+ * two projections are independent), and the down projection maps it back. The product of two Gaussians has
+ * heavier tails than either (kurtosis 9 against 3), which the element maxima account for.
+ * Backward: δ_up = φ(g)·δ_h, δ_gate = φ'(g)·u·δ_h, δ_x = W_gateᵀ δ_gate + W_upᵀ δ_up.
+ */
+import type { GraphLayer } from "../../graph/types.js";
+import type { GatedFeedForwardLayer } from "../../spec/types.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, weightOf } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import { activationKappa } from "../activation/moments.js";
+
+const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field; SCIENCE.md §2.1, §2.9)";
+
+/** What the gated feed-forward backward rule needs. */
+export interface GatedStash {
+  input: Signal;
+  gate: Signal;
+  up: Signal;
+  product: Signal;
+  /** E[φ(g)²] and E[φ'(g)²] */
+  gateSecond: number;
+  gateDerivativeSecond: number;
+  gateZeroFraction: number;
+}
+
+function slopeOf(spec: GatedFeedForwardLayer): number {
+  // the spec has no slope for the gate; leaky-relu gates use the common default 0.01 (common practice)
+  return spec.activation === "leaky-relu" ? 0.01 : 0;
+}
+
+function sizes(ctx: OpContext, layer: GraphLayer) {
+  const spec = layer.spec as GatedFeedForwardLayer;
+  const P = layer.input.layout === "features" ? layer.input.positions : 1;
+  const D = layer.input.layout === "features" ? layer.input.features : 1;
+  const hiddenShape = P === 1 ? [ctx.batch, spec.hidden] : [ctx.batch, P, spec.hidden];
+  return { spec, P, D, hiddenShape, hiddenElements: ctx.batch * P * spec.hidden };
+}
+
+export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<GatedStash> {
+    const { spec, P, D, hiddenShape, hiddenElements } = sizes(ctx, layer);
+    const wg = weightOf(layer, "gate");
+    const wu = weightOf(layer, "up");
+    const wd = weightOf(layer, "down");
+    const gateGain = ctx.variance(wg) * wg.fanIn;
+    const upGain = ctx.variance(wu) * wu.fanIn;
+    const gate = linearOutput(gateGain * input.q, input.logVar, spec.hidden);
+    const up = linearOutput(upGain * input.q, input.logVar, spec.hidden);
+    const m = ctx.moments(spec.activation, gate.q, slopeOf(spec));
+    const kappa = activationKappa(m);
+    const product: Signal = {
+      q: m.second * up.q,
+      mean: 0,
+      zeroFraction: m.zeroFraction,
+      shape: "gaussian",
+      tail: "product",
+      // the product's squared norm fluctuates like the gate's activation times the up projection (κ_f + 2 per width)
+      logVar: input.logVar + (kappa.forward + 2) / spec.hidden,
+      gaussian: false,
+    };
+    const downGain = ctx.variance(wd) * wd.fanIn;
+    const output = linearOutput(downGain * product.q, product.logVar, D);
+    const gateFactor = factor(gateGain, `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
+    const upFactor = factor(upGain, `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
+    const productFactor = factor(m.second, `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);
+    const downFactor = factor(downGain, `down: fan_in·var_w = ${fmt(downGain)}`, SOURCES.lengthMap);
+    const termSignal = (s: Signal, v: number): Signal => ({ ...s, q: s.q * v, mean: 0 });
+    return {
+      output,
+      factors: [upFactor, productFactor, downFactor],
+      role: "activation",
+      inner: [
+        { suffix: "gate", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: gate, factors: [gateFactor] },
+        { suffix: "up", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: up, factors: [upFactor] },
+        { suffix: "product", role: "activation", shape: hiddenShape, elements: hiddenElements, signal: product, factors: [upFactor, productFactor] },
+      ],
+      hazards: [
+        {
+          kind: "accumulation",
+          input: termSignal(input, ctx.variance(wg)),
+          inputElements: hiddenElements * D,
+          output: gate,
+          outputElements: hiddenElements,
+          terms: D,
+          guarded: false,
+          detail: `gate and up projections summed over ${D} inputs`,
+        },
+        {
+          kind: "accumulation",
+          input: termSignal(product, ctx.variance(wd)),
+          inputElements: hiddenElements * D,
+          output,
+          outputElements: ctx.batch * P * D,
+          terms: spec.hidden,
+          guarded: false,
+          detail: `down projection summed over ${spec.hidden} hidden units`,
+        },
+      ],
+      stash: {
+        input,
+        gate,
+        up,
+        product,
+        gateSecond: m.second,
+        gateDerivativeSecond: m.derivativeSecond,
+        gateZeroFraction: m.zeroFraction,
+      },
+    };
+  },
+  backward(ctx: OpContext, layer: GraphLayer, stash: GatedStash, output: Gradient): BackwardResult {
+    const { spec, P, D, hiddenShape, hiddenElements } = sizes(ctx, layer);
+    const wg = weightOf(layer, "gate");
+    const wu = weightOf(layer, "up");
+    const wd = weightOf(layer, "down");
+    const downGain = ctx.variance(wd) * wd.fanOut;
+    const productGradient = linearGradient(downGain * output.q, output.logVar, spec.hidden);
+    const upQ = stash.gateSecond * productGradient.q;
+    const gateQ = stash.gateDerivativeSecond * stash.up.q * productGradient.q;
+    const upGradient: Gradient = { q: upQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
+    const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
+    const downFactor = factor(downGain, `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
+    const inner: InnerGradient[] = [
+      { suffix: "product", shape: hiddenShape, elements: hiddenElements, gradient: productGradient, factors: [downFactor] },
+      { suffix: "up", shape: hiddenShape, elements: hiddenElements, gradient: upGradient, factors: [downFactor, factor(stash.gateSecond, `up: E[φ(g)²] = ${fmt(stash.gateSecond)}`, SOURCE)] },
+      {
+        suffix: "gate",
+        shape: hiddenShape,
+        elements: hiddenElements,
+        gradient: gateGradient,
+        factors: [downFactor, factor(stash.gateDerivativeSecond * stash.up.q, `gate: E[φ'(g)²]·E[u²] = ${fmt(stash.gateDerivativeSecond)}·${fmt(stash.up.q)}`, SOURCE)],
+      },
+    ];
+    const inputQ = ctx.variance(wg) * wg.fanOut * gateQ + ctx.variance(wu) * wu.fanOut * upQ;
+    const N = ctx.batch * P;
+    const wgm = (weight: string, x: number, delta: number, zeroFraction: number): WeightGradientMoment => ({
+      weight,
+      q: N * x * delta,
+      coherentQ: N * N * x * delta,
+      terms: N,
+      zeroFraction,
+      logVar: stash.input.logVar + productGradient.logVar,
+      rule: `sum of ${N} products (batch × positions) of input and gradient`,
+    });
+    const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
+    return {
+      input: linearGradient(inputQ, productGradient.logVar, D),
+      factors: [downFactor, factor(ratio, `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
+      inner,
+      weightGradients: [
+        wgm("gate", stash.input.q, gateQ, 0),
+        wgm("up", stash.input.q, upQ, 0),
+        wgm("down", stash.product.q, output.q, 0),
+      ],
+    };
+  },
+};

@@ -1,0 +1,120 @@
+/**
+ * Layer norm, RMS norm and batch norm: the output's second moment is reset to gain²·var/(var + ε) (the
+ * definitions of the layers: Ba et al. 2016; Zhang & Sennrich 2019; Ioffe & Szegedy 2015), which also resets the
+ * finite-width spread (Hanin & Rolnick 2018). Backward, the gradient is multiplied by gain/√(var + ε), the
+ * Jacobian's scale; the projection that removes the mean and the radial direction takes 1 or 2 of n dimensions
+ * and is left out. Its spread gains the forward spread of 1/√var.
+ */
+import { positionCount, sampleElements } from "../../graph/shape.js";
+import type { GraphLayer } from "../../graph/types.js";
+import type { NormLayer } from "../../spec/types.js";
+import { factor, fmt, maybeWeight, weightOf } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+
+/** What the norm backward rule needs. */
+export interface NormStash {
+  input: Signal;
+  /** the variance the layer divides by (mean removed for layer/batch norm), plus ε */
+  denominator: number;
+  /** E[x̂²] of the normalised values */
+  normalisedSecond: number;
+  gainSquared: number;
+}
+
+const SOURCE = "normalisation resets the scale to the gain (layer definitions; SCIENCE.md §2.7)";
+
+/** Elements summed into one statistic: features of a position (layer/rms norm), or batch × pixels of a channel (batch norm). */
+export function normTerms(layer: GraphLayer, batch: number): number {
+  const family = layer.family;
+  if (family === "batch-norm") return batch * positionCount(layer.input);
+  if (layer.input.layout === "image") return sampleElements(layer.input);
+  return layer.input.layout === "features" ? layer.input.features : 1;
+}
+
+export const normRule: AnalyticRule<NormStash> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<NormStash> {
+    const spec = layer.spec as NormLayer;
+    const gain = weightOf(layer, "gain");
+    const gainSquared = ctx.variance(gain);
+    const bias = maybeWeight(layer, "bias");
+    const biasVariance = bias === undefined ? 0 : ctx.variance(bias);
+    const centred = layer.family !== "rms-norm";
+    const variance = centred ? Math.max(input.q - input.mean * input.mean, 0) : input.q;
+    const denominator = variance + spec.epsilon;
+    const normalisedSecond = denominator > 0 ? variance / denominator : 0;
+    const q = gainSquared * normalisedSecond + biasVariance;
+    const output: Signal = centred
+      ? { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true }
+      : {
+          q,
+          mean: input.mean * Math.sqrt(gainSquared / denominator),
+          zeroFraction: input.zeroFraction,
+          shape: input.shape,
+          logVar: 0,
+          gaussian: input.gaussian,
+        };
+    if (!centred && input.bound !== undefined) output.bound = input.bound * Math.sqrt(gainSquared / denominator);
+    const terms = normTerms(layer, ctx.batch);
+    return {
+      output,
+      factors: [
+        factor(
+          input.q > 0 ? q / input.q : 0,
+          `${layer.family}: gain²·var/(var + ε) = ${fmt(gainSquared)}·${fmt(normalisedSecond)}${spec.epsilon > 0 && normalisedSecond < 0.99 ? " (ε dominates a small input)" : ""}`,
+          SOURCE,
+        ),
+      ],
+      role: "activation",
+      inner: [],
+      hazards: [
+        {
+          kind: "norm-sum-of-squares",
+          input,
+          inputElements: ctx.batch * sampleElements(layer.input),
+          terms,
+          guarded: false,
+          detail: `${layer.family} sums the squares of ${terms} elements per statistic`,
+        },
+      ],
+      stash: { input, denominator, normalisedSecond, gainSquared },
+    };
+  },
+  backward(ctx: OpContext, layer: GraphLayer, stash: NormStash, output: Gradient): BackwardResult {
+    const ratio = stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
+    const terms = ctx.batch * positionCount(layer.input);
+    const weightGradients: WeightGradientMoment[] = [
+      {
+        weight: "gain",
+        q: terms * stash.normalisedSecond * output.q,
+        coherentQ: terms * terms * stash.normalisedSecond * output.q,
+        terms,
+        zeroFraction: 0,
+        logVar: output.logVar,
+        rule: `sum of ${terms} products (batch × positions) of normalised input and gradient`,
+      },
+    ];
+    if (maybeWeight(layer, "bias") !== undefined) {
+      weightGradients.push({
+        weight: "bias",
+        q: terms * output.q,
+        coherentQ: terms * terms * output.q,
+        terms,
+        zeroFraction: 0,
+        logVar: output.logVar,
+        rule: `sum of ${terms} gradients (batch × positions)`,
+      });
+    }
+    const input: Gradient = {
+      q: ratio * output.q,
+      zeroFraction: layer.family === "rms-norm" ? output.zeroFraction : 0,
+      shape: "gaussian",
+      logVar: output.logVar + (layer.family === "batch-norm" ? 0 : stash.input.logVar),
+    };
+    return {
+      input,
+      factors: [factor(ratio, `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],
+      inner: [],
+      weightGradients,
+    };
+  },
+};

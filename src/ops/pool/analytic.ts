@@ -1,0 +1,117 @@
+/**
+ * Average and max pooling over windows of k elements (size² pixels of an image, or `size` positions).
+ * Average: the mean passes, the fluctuation shrinks by 1/k for independent elements (neighbouring elements are
+ * often correlated, so this is a lower estimate). Max: order statistics of k independent Gaussian elements
+ * (Gumbel 1958 for the large-k limit; computed here by quadrature for the exact k).
+ * Backward: average spreads each gradient over its k inputs (÷k²); max routes it to the arg-max only, so the input
+ * gradient is exactly zero elsewhere.
+ */
+import { sampleElements } from "../../graph/shape.js";
+import type { GraphLayer } from "../../graph/types.js";
+import type { PoolLayer } from "../../spec/types.js";
+import { factor, fmt } from "../common.js";
+import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+
+const AVERAGE_SOURCE = "mean of k independent elements (variance ÷ k; approximation)";
+const MAX_SOURCE = "maximum of k independent Gaussian elements (order statistics, computed by quadrature)";
+
+/** Window length in elements. */
+export function windowElements(layer: GraphLayer): number {
+  const size = (layer.spec as PoolLayer).size;
+  return layer.input.layout === "image" ? size * size : size;
+}
+
+const orderCache = new Map<number, { m1: number; m2: number; m2Positive: number }>();
+
+/**
+ * Moments of M = max of k standard normals: E[M], E[M²], and E[max(M, 0)²] (the maximum of k ReLU outputs),
+ * from the density k·φ(x)·Φ(x)^(k−1), Simpson's rule on [−10, 10].
+ */
+export function maxOfNormals(k: number): { m1: number; m2: number; m2Positive: number } {
+  const hit = orderCache.get(k);
+  if (hit !== undefined) return hit;
+  const steps = 4000;
+  const h = 20 / steps;
+  let m1 = 0;
+  let m2 = 0;
+  let m2Positive = 0;
+  // Φ by cumulative Simpson would drift; use the erf-free running trapezoid of φ, accurate to ~1e-9 at this step
+  let cdf = 0;
+  let prevPdf = 0;
+  for (let i = 0; i <= steps; i++) {
+    const x = -10 + i * h;
+    const pdf = Math.exp(-0.5 * x * x) / Math.sqrt(2 * Math.PI);
+    if (i > 0) cdf += 0.5 * h * (pdf + prevPdf);
+    prevPdf = pdf;
+    const density = k * pdf * Math.pow(Math.min(cdf, 1), k - 1);
+    const weight = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
+    m1 += weight * x * density;
+    m2 += weight * x * x * density;
+    if (x > 0) m2Positive += weight * x * x * density;
+  }
+  const result = { m1, m2, m2Positive };
+  orderCache.set(k, result);
+  return result;
+}
+
+export const poolRule: AnalyticRule<null> = {
+  forward(_ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
+    const k = windowElements(layer);
+    const variance = Math.max(input.q - input.mean * input.mean, 0);
+    let q: number;
+    let mean = input.mean;
+    let zeroFraction = 0;
+    let rule: string;
+    let source: string;
+    if (layer.family === "average-pool") {
+      q = variance / k + input.mean * input.mean;
+      zeroFraction = Math.pow(input.zeroFraction, k);
+      rule = `average of ${k}: variance ÷ ${k}`;
+      source = AVERAGE_SOURCE;
+    } else {
+      const order = maxOfNormals(k);
+      if (input.shape === "half-gaussian" && input.zeroFraction >= 0.5) {
+        // the max of k ReLU outputs is the ReLU of the max of the k pre-activations
+        const preVariance = input.q / (1 - input.zeroFraction);
+        q = preVariance * order.m2Positive;
+        mean = Math.sqrt(preVariance) * order.m1;
+        zeroFraction = Math.pow(input.zeroFraction, k);
+      } else {
+        const sigma = Math.sqrt(variance);
+        q = input.mean * input.mean + 2 * input.mean * sigma * order.m1 + variance * order.m2;
+        mean = input.mean + sigma * order.m1;
+      }
+      rule = `max of ${k}: E[M²] of ${k} Gaussians`;
+      source = MAX_SOURCE;
+    }
+    const output: Signal = { q, mean, zeroFraction, shape: "gaussian", logVar: input.logVar, gaussian: false };
+    return {
+      output,
+      factors: [factor(input.q > 0 ? q / input.q : 0, `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)],
+      role: "activation",
+      inner: [],
+      hazards: [],
+      stash: null,
+    };
+  },
+  backward(_ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
+    const k = windowElements(layer);
+    const share = sampleElements(layer.output) / sampleElements(layer.input);
+    if (layer.family === "average-pool") {
+      const ratio = share / k;
+      return {
+        input: { ...output, q: output.q * ratio, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
+        factors: [factor(ratio, `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
+        inner: [],
+        weightGradients: [],
+      };
+    }
+    const reached = Math.min(share, 1);
+    return {
+      input: { ...output, q: output.q * share, zeroFraction: 1 - reached * (1 - output.zeroFraction) },
+      factors: [factor(share, `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
+      inner: [],
+      weightGradients: [],
+    };
+  },
+};

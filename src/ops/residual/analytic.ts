@@ -1,0 +1,73 @@
+/**
+ * Residual block, x_out = x + α·F(x): second moments add, q_out = q_x + α²·q_F (+ 2α·E[x]·E[F] for non-zero
+ * means) (Zhang, Dauphin & Ma 2019, Fixup §2); a He-initialised branch doubles q per block without normalisation.
+ * Backward, δ_x = δ_out + α·J_Fᵀ·δ_out, so the branch is seeded with α²·E[δ_out²] and the two gradients add.
+ * The finite-width spread is not re-accumulated along the skip (Hanin & Rolnick 2018): only the branch's own spread
+ * is added, weighted by its share of the sum.
+ */
+import type { GraphLayer } from "../../graph/types.js";
+import type { ResidualLayer } from "../../spec/types.js";
+import { factor, fmt, sumLogVar } from "../common.js";
+import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+
+const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
+
+/** What the residual backward rule needs. */
+export interface ResidualStash {
+  input: Signal;
+}
+
+/** The gradient the branch starts from: α·δ_out, with its ledger factor. */
+export function residualBranchSeed(layer: GraphLayer, output: Gradient): { gradient: Gradient; factor: Factor } {
+  const alpha = (layer.spec as ResidualLayer).multiplier;
+  return {
+    gradient: { ...output, q: alpha * alpha * output.q },
+    factor: factor(alpha * alpha, `residual branch: multiplier² = ${fmt(alpha * alpha)}`, SOURCE),
+  };
+}
+
+export const residualRule: AnalyticRule<ResidualStash> = {
+  forward(_ctx: OpContext, layer: GraphLayer, input: Signal, branch: BranchResults): ForwardResult<ResidualStash> {
+    const alpha = (layer.spec as ResidualLayer).multiplier;
+    const f = branch.branchOutput;
+    if (f === undefined) throw new RangeError(`residual ${layer.name}: the branch output is missing`);
+    const branchQ = alpha * alpha * f.q;
+    const q = input.q + branchQ + 2 * alpha * input.mean * f.mean;
+    const shared = branch.branchResets === true ? 0 : 1;
+    const output: Signal = {
+      q,
+      mean: input.mean + alpha * f.mean,
+      zeroFraction: input.zeroFraction * f.zeroFraction,
+      shape: "gaussian",
+      logVar: sumLogVar(input.q, input.logVar, branchQ, f.logVar, shared),
+      gaussian: input.gaussian && f.gaussian,
+    };
+    const ratio = input.q > 0 ? q / input.q : 0;
+    return {
+      output,
+      factors: [factor(ratio, `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)],
+      role: "activation",
+      inner: [],
+      hazards: [],
+      stash: { input },
+    };
+  },
+  backward(_ctx: OpContext, layer: GraphLayer, _stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
+    const g = branch.branchGradient;
+    if (g === undefined) throw new RangeError(`residual ${layer.name}: the branch gradient is missing`);
+    const q = output.q + g.q;
+    const input: Gradient = {
+      q,
+      zeroFraction: output.zeroFraction * g.zeroFraction,
+      shape: "gaussian",
+      logVar: sumLogVar(output.q, output.logVar, g.q, g.logVar, 1),
+    };
+    const ratio = output.q > 0 ? q / output.q : 0;
+    return {
+      input,
+      factors: [factor(ratio, `residual: 1 + branch gradient/skip gradient = ${fmt(ratio)}`, SOURCE)],
+      inner: [],
+      weightGradients: [],
+    };
+  },
+};

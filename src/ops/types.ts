@@ -1,0 +1,177 @@
+/**
+ * The analytic (mean-field) rules of one layer family: how a layer changes the second moment of the tensor going
+ * forward and of the gradient coming back, the element shape and exact-zero mass of what it produces, and the
+ * ledger line that explains the change. The magnitude engine (src/magnitude) strings these together over a graph.
+ *
+ * All second moments are E[x²] over every element (zeros included), averaged over initialisations and data: the
+ * mean-field quantity q of Poole et al. 2016. The finite-width spread is carried separately as the variance of
+ * ln(squared norm) (SCIENCE.md §2.6).
+ */
+import type { GraphLayer, GraphWeight } from "../graph/types.js";
+import type { ActivationName } from "../spec/types.js";
+
+/** Same strings as ElementShape in src/magnitude/types.ts (ops may not import magnitude). */
+export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal";
+
+/** Tail family of a tensor's elements beyond its shape, for element maxima. */
+export type TailKind = "gaussian" | "product";
+
+/** The forward moments of one tensor. */
+export interface Signal {
+  /** E[x²] over all elements (zeros included) */
+  q: number;
+  /** E[x] over all elements */
+  mean: number;
+  zeroFraction: number;
+  shape: OpElementShape;
+  /** largest magnitude an element can take (bounded activations, probabilities) */
+  bound?: number;
+  /** log-normal shape: standard deviation of log2|x| across elements */
+  elementLog2Spread?: number;
+  /** variance over draws of ln(squared norm) (finite-width spread, Hanin & Nica 2019) */
+  logVar: number;
+  /** heavier-than-Gaussian tails (a product of two Gaussians in a gated layer) */
+  tail?: TailKind;
+  /**
+   * set by a weight layer on its output: the width whose random matrix made it, and the κ already counted for it
+   * (κ = 2 for a linear map); a following activation replaces that κ by its own (SCIENCE.md §2.6)
+   */
+  fresh?: { width: number; kappa: number };
+  /** whether the tensor is roughly zero-mean Gaussian (the input assumption of the activation rules) */
+  gaussian: boolean;
+}
+
+/** The backward moments of one gradient tensor. */
+export interface Gradient {
+  /** E[δ²] over all elements (zeros included) */
+  q: number;
+  zeroFraction: number;
+  shape: OpElementShape;
+  logVar: number;
+  elementLog2Spread?: number;
+  bound?: number;
+  /** set by a transposed weight map: the width it produced and the κ counted, for the next activation to replace */
+  fresh?: { width: number; kappa: number };
+}
+
+/** One multiplicative step, for the ledger: the second moment goes from `before` to `before·ratio`. */
+export interface Factor {
+  /** ratio of second moments per element (zeros included) */
+  ratio: number;
+  /** the rule in words with its numbers, e.g. "dense: fan_in·var_w = 1.000" */
+  rule: string;
+  /** the published source of the rule */
+  source: string;
+}
+
+/** Activation moments at one input variance (SCIENCE.md §2.9), as the numeric module defines them. */
+export interface ActivationMoments {
+  mean: number;
+  second: number;
+  derivativeMean: number;
+  derivativeSecond: number;
+  fourth: number;
+  derivativeFourth: number;
+  zeroFraction: number;
+}
+
+/** What a rule may ask of the engine. */
+export interface OpContext {
+  /** samples per step on one worker */
+  batch: number;
+  /** "start": at initialisation; "end": at the end of the training horizon */
+  phase: "start" | "end";
+  /** variance of one element of a weight in this phase (initial variance × growth² at the end) */
+  variance(weight: GraphWeight): number;
+  /** memoised Gaussian expectations of an activation at input variance q */
+  moments(name: ActivationName, q: number, slope: number): ActivationMoments;
+}
+
+/** A tensor inside a layer besides its output (attention logits, the gated product...). */
+export interface InnerTensor {
+  /** id suffix, e.g. "logits" -> `<layer>/pre-activation:logits` */
+  suffix: string;
+  role: "activation" | "pre-activation";
+  /** full shape of one step, batch first */
+  shape: number[];
+  elements: number;
+  signal: Signal;
+  /** factors from the layer's input to this tensor */
+  factors: Factor[];
+}
+
+/** A gradient tensor inside a layer (of an inner tensor). */
+export interface InnerGradient {
+  suffix: string;
+  shape: number[];
+  elements: number;
+  gradient: Gradient;
+  /** factors from the gradient at the layer's output to this one */
+  factors: Factor[];
+}
+
+/** An operation hazard a rule reports (turned into a HazardSite by the engine). */
+export interface OpHazard {
+  kind: "softmax-exp" | "norm-sum-of-squares" | "accumulation";
+  /** what goes into the operation */
+  input: Signal;
+  inputElements: number;
+  /** what comes out, when it differs from the input (an accumulated sum) */
+  output?: Signal;
+  outputElements?: number;
+  terms: number;
+  guarded: boolean;
+  detail: string;
+}
+
+/** Forward result of one layer. */
+export interface ForwardResult<Stash = unknown> {
+  output: Signal;
+  /** factors from input to output, for the ledger (one or more) */
+  factors: Factor[];
+  /** the output's role: weight layers give pre-activations */
+  role: "activation" | "pre-activation";
+  inner: InnerTensor[];
+  hazards: OpHazard[];
+  /** whatever the backward rule needs */
+  stash: Stash;
+}
+
+/** Per-element second moment of one weight's gradient, summed over batch and positions. */
+export interface WeightGradientMoment {
+  /** GraphWeight.name */
+  weight: string;
+  /** incoherent sum: N·E[x²]·E[δ²] (independent signs) */
+  q: number;
+  /** coherent sum: N²·E[x²]·E[δ²] (all terms aligned), the upper bracket (SCIENCE.md §2.1) */
+  coherentQ: number;
+  /** terms summed per element (batch × positions) */
+  terms: number;
+  zeroFraction: number;
+  logVar: number;
+  /** the rule in words */
+  rule: string;
+}
+
+/** Backward result of one layer. */
+export interface BackwardResult {
+  /** gradient at the layer's input; absent for the first layer on token input (no gradient for ids) */
+  input?: Gradient;
+  factors: Factor[];
+  inner: InnerGradient[];
+  weightGradients: WeightGradientMoment[];
+}
+
+/** Extra inputs for composite layers: the residual add gets its branch's output (forward) or input gradient. */
+export interface BranchResults {
+  branchOutput?: Signal;
+  branchGradient?: Gradient;
+  /** whether a norm inside the branch resets the scale (the branch output no longer tracks the skip's norm) */
+  branchResets?: boolean;
+}
+
+/** The analytic rules of one layer family. */
+export interface AnalyticRule<Stash = unknown> {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal, branch: BranchResults): ForwardResult<Stash>;
+  backward(ctx: OpContext, layer: GraphLayer, stash: Stash, output: Gradient, branch: BranchResults): BackwardResult;
+}

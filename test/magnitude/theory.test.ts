@@ -1,0 +1,151 @@
+/**
+ * The magnitude engine against published theory. Each check names its source; values are from SCIENCE.md,
+ * "Check values".
+ */
+import { describe, expect, test } from "vitest";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import type { Prediction, TensorPrediction } from "../../src/magnitude/index.js";
+import type { LayerSpec, NetworkSpec } from "../../src/spec/types.js";
+import { act, attention, dense, features, glorot, he, lecun, makeSpec, normalInit, residual } from "./build-spec.js";
+
+function run(spec: NetworkSpec): Prediction {
+  const result = buildGraph(spec);
+  if (!result.ok) throw new Error(result.issues.map((i) => i.message).join("; "));
+  return predict(result.graph, spec);
+}
+
+function tensor(prediction: Prediction, id: string): TensorPrediction {
+  const found = prediction.tensors.find((t) => t.id === id);
+  if (found === undefined) throw new Error(`no tensor ${id}; have ${prediction.tensors.slice(0, 20).map((t) => t.id).join(", ")}…`);
+  return found;
+}
+
+const meanSquare = (t: TensorPrediction): number => t.start.meanSquare ?? NaN;
+
+function mlp(depth: number, width: number, init = he, activation: "relu" | "identity" = "relu"): LayerSpec[] {
+  const layers: LayerSpec[] = [];
+  for (let i = 0; i < depth; i++) layers.push(dense(`d${i}`, width, init), act(`a${i}`, activation));
+  layers.push(dense("out", 1, lecun));
+  return layers;
+}
+
+describe("forward second moments", () => {
+  test("He init keeps the second moment constant through 50 ReLU layers (He et al. 2015; SCIENCE.md check 19)", () => {
+    const p = run(makeSpec(mlp(50, 256), { input: features(256) }));
+    const first = meanSquare(tensor(p, "d0/pre-activation"));
+    expect(first).toBeCloseTo(2, 12); // input q = 1, He: 2/n·n·1
+    for (let i = 1; i < 50; i++) expect(meanSquare(tensor(p, `d${i}/pre-activation`)) / first).toBeCloseTo(1, 12);
+  });
+
+  test("Glorot + ReLU halves the second moment per square layer: 2^-30 after 30 layers (He et al. 2015 analysis; check 18)", () => {
+    const p = run(makeSpec(mlp(31, 128, glorot), { input: features(128) }));
+    const ratio = meanSquare(tensor(p, "d30/pre-activation")) / meanSquare(tensor(p, "d0/pre-activation"));
+    expect(Math.abs(ratio / 2 ** -30 - 1)).toBeLessThan(1e-12);
+    expect(2 ** -30).toBeCloseTo(9.313225746154785e-10, 22);
+  });
+
+  test("a residual stream with variance-preserving He branches doubles per block without normalisation (Zhang et al. 2019, Fixup §2; check 28)", () => {
+    const blocks: LayerSpec[] = [];
+    for (let i = 0; i < 12; i++) blocks.push(residual(`block${i}`, [act("relu"), dense("proj", 64, he)]));
+    const p = run(makeSpec([...blocks, dense("out", 1, lecun)], { input: features(64) }));
+    for (let i = 0; i < 12; i++) expect(meanSquare(tensor(p, `block${i}/activation`))).toBeCloseTo(2 ** (i + 1), 9);
+  });
+
+  test("a branch multiplier α gives (1 + α²) per block; α = 1/√L keeps the growth under e (Fixup §2, SCIENCE.md §2.7)", () => {
+    const L = 64;
+    const alpha = 1 / Math.sqrt(L);
+    const blocks: LayerSpec[] = [];
+    for (let i = 0; i < L; i++) blocks.push(residual(`block${i}`, [act("relu"), dense("proj", 64, he)], alpha));
+    const p = run(makeSpec([...blocks, dense("out", 1, lecun)], { input: features(64) }));
+    const growth = meanSquare(tensor(p, `block${L - 1}/activation`));
+    expect(growth / (1 + alpha * alpha) ** L).toBeCloseTo(1, 12);
+    expect(growth).toBeLessThan(Math.E);
+  });
+
+  test("attention logit variance is d_k unscaled and 1 after 1/√d_k with unit q and k (Vaswani et al. 2017, footnote 4; check 30)", () => {
+    for (const [scaling, expected] of [["logits", 1], ["query", 1], ["none", 64]] as const) {
+      const p = run(makeSpec([attention("att", 4, 64, { scaling, init: lecun }), dense("out", 1, lecun)], { input: features(256, 32) }));
+      expect(meanSquare(tensor(p, "att/pre-activation:query"))).toBeCloseTo(1, 12);
+      expect(meanSquare(tensor(p, "att/pre-activation:key"))).toBeCloseTo(1, 12);
+      expect(meanSquare(tensor(p, "att/pre-activation:logits"))).toBeCloseTo(expected, 10);
+    }
+  });
+
+  test("uniform attention at init averages P values: head output second moment ≈ E[v²]/P, causal ≈ E[v²]·H_P/P (mean field)", () => {
+    const P = 32;
+    // tiny query weights make the logits ~0, so attention is uniform
+    const tiny = normalInit(1e-6);
+    const full = run(makeSpec([attention("att", 2, 16, { init: tiny }), dense("out", 1, lecun)], { input: features(64, P) }));
+    const v = meanSquare(tensor(full, "att/pre-activation:value"));
+    expect(meanSquare(tensor(full, "att/activation:heads")) / v).toBeCloseTo(1 / P, 6);
+    const causal = run(makeSpec([attention("att", 2, 16, { init: tiny, causal: true }), dense("out", 1, lecun)], { input: features(64, P) }));
+    let harmonic = 0;
+    for (let i = 1; i <= P; i++) harmonic += 1 / i;
+    expect(meanSquare(tensor(causal, "att/activation:heads")) / meanSquare(tensor(causal, "att/pre-activation:value"))).toBeCloseTo(harmonic / P, 6);
+  });
+
+  test("a ReLU output has exact-zero mass 1/2 and half-Gaussian nonzero elements (ReLU definition; SCIENCE.md §2.10)", () => {
+    const p = run(makeSpec(mlp(2, 64), { input: features(64) }));
+    const relu = tensor(p, "a0/activation");
+    expect(relu.start.zeroFraction).toBe(0.5);
+    expect(relu.start.shape).toBe("half-gaussian");
+    const gradient = tensor(p, "d0/activation-gradient");
+    expect(gradient.start.zeroFraction).toBe(0.5);
+  });
+});
+
+describe("backward second moments", () => {
+  function linearChain(factor: number): Prediction {
+    const width = 100;
+    // gradient rms factor per layer: √(var_w·fan_out) = factor
+    const init = normalInit(factor / Math.sqrt(width));
+    const layers: LayerSpec[] = [];
+    for (let i = 0; i <= 100; i++) layers.push(dense(`d${i}`, width, init));
+    return run(makeSpec(layers, { input: features(width) }));
+  }
+
+  test("a 100-layer linear chain with gradient factor 1.5 grows the gradient by 1.5^100 ≈ 4.0656e17 (common practice; check 36)", () => {
+    const p = linearChain(1.5);
+    const ratio = Math.sqrt(meanSquare(tensor(p, "d0/activation-gradient")) / meanSquare(tensor(p, "d100/activation-gradient")));
+    expect(Math.abs(ratio / 4.0656117753521524e17 - 1)).toBeLessThan(1e-12);
+  });
+
+  test("factor 0.8 shrinks it by 0.8^100 ≈ 2.037e-10 (common practice; check 36)", () => {
+    const p = linearChain(0.8);
+    const ratio = Math.sqrt(meanSquare(tensor(p, "d0/activation-gradient")) / meanSquare(tensor(p, "d100/activation-gradient")));
+    expect(Math.abs(ratio / 2.0370359763344861e-10 - 1)).toBeLessThan(1e-12);
+  });
+
+  test("He init keeps the gradient second moment constant through ReLU layers: χ = var_w·fan_out·E[φ'²] = 1 (Schoenholz et al. 2017; check 26)", () => {
+    const p = run(makeSpec(mlp(30, 128), { input: features(128) }));
+    const last = meanSquare(tensor(p, "a29/activation-gradient"));
+    for (let i = 0; i < 29; i++) expect(meanSquare(tensor(p, `a${i}/activation-gradient`)) / last).toBeCloseTo(1, 12);
+  });
+});
+
+describe("finite-width spread", () => {
+  test("ReLU log-variance of the squared norm is 5·Σ1/n, so log2Spread = √(5L/n)/(2 ln 2) (Hanin & Nica 2019 form; SCIENCE.md §2.6, check 27)", () => {
+    const width = 200;
+    const p = run(makeSpec(mlp(20, width), { input: features(width) }));
+    for (const l of [0, 4, 19]) {
+      const spread = tensor(p, `a${l}/activation`).start.log2Spread;
+      expect(spread).toBeCloseTo(Math.sqrt((5 * (l + 1)) / width) / (2 * Math.LN2), 12);
+    }
+  });
+
+  test("the median-draw rms sits e^(−κβ/4) below the mean-field rms (ln‖h‖² ~ N(−κβ/2, κβ), SCIENCE.md §2.6)", () => {
+    const width = 100;
+    const p = run(makeSpec(mlp(10, width), { input: features(width) }));
+    const t = tensor(p, "d9/pre-activation");
+    // the pre-activation of layer 10 has seen 9 ReLU layers (κ = 5) and one linear map (κ = 2)
+    const kb = (9 * 5 + 2) / width;
+    expect(t.start.rms).toBeCloseTo(Math.sqrt(meanSquare(t)) * Math.exp(-kb / 4), 12);
+  });
+
+  test("a norm resets the spread (Hanin & Rolnick 2018)", () => {
+    const p = run(makeSpec([...mlp(10, 64).slice(0, -1), { family: "layer-norm", name: "ln", path: ["x"], gain: 1, epsilon: 1e-5 }, dense("out", 1, lecun)], { input: features(64) }));
+    expect(tensor(p, "a9/activation").start.log2Spread).toBeGreaterThan(0.3);
+    expect(tensor(p, "ln/activation").start.log2Spread).toBe(0);
+  });
+});
