@@ -6,3 +6,9 @@ export { parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, varyText, Var
 export type { Variant, VariedText, VaryAxis, VaryValue } from "./vary.js";
 export { defaultWorkers, runPool } from "./pool.js";
 export type { PoolOptions, TaskOutcome } from "./pool.js";
+export { evaluateTask, issuesError } from "./evaluate.js";
+export type { EvaluateHooks, SpecTask, TaskResult } from "./evaluate.js";
+export { planBatch, runBatch, DEFAULT_WORKER_URL } from "./run.js";
+export type { RunBatchOptions } from "./run.js";
+export { batchExitCode } from "./types.js";
+export type { BatchRow, ErrorPosition, LossScaleSummary, RiskMeasure, RowError, SpecSummary, SummaryVerdict, WorstSummary } from "./types.js";

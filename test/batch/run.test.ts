@@ -1,0 +1,131 @@
+import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { afterAll, describe, expect, test } from "vitest";
+import { evaluateTask, issuesError } from "../../src/batch/evaluate.js";
+import { parseVaryOption, variantsOf } from "../../src/batch/vary.js";
+import { planBatch, runBatch } from "../../src/batch/run.js";
+import type { BatchInput } from "../../src/batch/paths.js";
+import { specJsonSchema } from "../../src/spec/index.js";
+
+const WORKER = new URL("./fixtures/fake-judge-worker.mjs", import.meta.url);
+const dir = mkdtempSync(join(tmpdir(), "headroom-run-"));
+afterAll(() => rmSync(dir, { recursive: true, force: true }));
+
+// an invented spec: a small classifier on made-up sensor readings
+const spec = (name: string, batch: number | string) => `name: ${name}
+input: { features: 16 }
+training:
+  batch: ${batch}
+  loss: { kind: cross-entropy, classes: 4 }
+precision: { activations: binary16 }
+layers:
+  - { type: dense, width: 32 }
+  - relu
+  - { type: dense, width: 4 }
+`;
+
+function write(name: string, text: string): string {
+  const path = join(dir, name);
+  writeFileSync(path, text);
+  return path;
+}
+
+describe("evaluateTask", () => {
+  const judge = (s: { name: string }) => ({ name: s.name, verdict: "fits" as const, formats: [], lossScale: { status: "not-evaluated" as const }, worst: null });
+  const hooks = { readText: (f: string) => (f === "a.yaml" ? spec("a", 8) : f === "bad.yaml" ? spec("bad", "-2") : (() => { throw Object.assign(new Error("x"), { code: "ENOENT" }); })()), judge, schema: specJsonSchema() };
+
+  test("a valid spec gives its summary", async () => {
+    expect(await evaluateTask({ file: "a.yaml", variant: null }, hooks)).toMatchObject({ status: "ok", summary: { name: "a" } });
+  });
+  test("an invalid spec gives an input error at its line and column", async () => {
+    const result = await evaluateTask({ file: "bad.yaml", variant: null }, hooks);
+    expect(result).toMatchObject({ status: "error", error: { kind: "input", position: { file: "bad.yaml", line: 4, column: 10 } } });
+    if (result.status === "error") expect(result.error.message).toMatch(/^bad\.yaml:4:10: training\.batch: /);
+  });
+  test("a missing file, a wrong extension and an unknown --vary key are input errors", async () => {
+    expect(await evaluateTask({ file: "gone.yaml", variant: null }, hooks)).toMatchObject({ error: { kind: "input", message: "gone.yaml: no such file" } });
+    expect(await evaluateTask({ file: "notes.txt", variant: null }, hooks)).toMatchObject({ error: { kind: "input" } });
+    const [variant] = variantsOf([parseVaryOption("training.bacth=4")]);
+    expect(await evaluateTask({ file: "a.yaml", variant: variant! }, hooks)).toMatchObject({
+      error: { kind: "input", message: "a.yaml: --vary training.bacth: the spec has no key training.bacth" },
+    });
+  });
+  test("a judge failure is an internal error; a RangeError is an input error", async () => {
+    const boom = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new Error("bug"); } });
+    expect(boom).toMatchObject({ error: { kind: "internal", message: "a.yaml: bug" } });
+    const range = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new RangeError("width 0"); } });
+    expect(range).toMatchObject({ error: { kind: "input" } });
+  });
+  test("issuesError counts the other problems", () => {
+    const error = issuesError([
+      { file: "f.yaml", line: 2, column: 3, path: "a", message: "m1" },
+      { file: "f.yaml", line: 5, column: 1, path: "b", message: "m2" },
+    ]);
+    expect(error.message).toBe("f.yaml:2:3: a: m1 (and 1 more problem)");
+  });
+});
+
+describe("runBatch (worker threads; run npm run build first)", () => {
+  test("rows in input order, argument errors in place, variants as rows, worker failures as rows", async () => {
+    const files = [
+      write("one.yaml", spec("one", 8)),
+      write("two.yaml", spec("two", 500)),
+      write("broken.yaml", spec("broken", "lots")),
+      write("explode.yaml", spec("explode", 8)),
+      write("crash.yaml", spec("crash", 8)),
+      write("three.yaml", spec("three", 9)),
+    ];
+    const inputs: BatchInput[] = [
+      ...files.slice(0, 3).map((path): BatchInput => ({ kind: "file", path, argument: path })),
+      { kind: "error", argument: "missing/*.yaml", message: "missing/*.yaml: no file matches this pattern" },
+      ...files.slice(3).map((path): BatchInput => ({ kind: "file", path, argument: path })),
+    ];
+    const progress: number[] = [];
+    const rows = await runBatch(inputs, [], { workerUrl: WORKER, workers: 2, onRow: (done) => progress.push(done) });
+    expect(rows.map((r) => r.index)).toEqual([0, 1, 2, 3, 4, 5, 6]);
+    expect(rows.map((r) => (r.status === "ok" ? r.summary.verdict : r.error.kind))).toEqual([
+      "fits",
+      "at-risk",
+      "input",
+      "input",
+      "internal",
+      "internal",
+      "fits",
+    ]);
+    const broken = rows[2]!;
+    expect(broken.status === "error" && broken.error.position).toEqual({ file: files[2], line: 4, column: 10 });
+    const crashed = rows[5]!;
+    expect(crashed.status === "error" && crashed.error.message).toMatch(/worker stopped: exited with code 9/);
+    expect(progress.at(-1)).toBe(7);
+  });
+
+  test("each file once per variant, named by its values", async () => {
+    const file = write("sweep.yaml", spec("sweep", 8));
+    const variants = variantsOf([parseVaryOption("training.batch=50,150"), parseVaryOption("precision.activations=bfloat16,binary16")]);
+    const rows = await runBatch([{ kind: "file", path: file, argument: file }], variants, { workerUrl: WORKER, workers: 2 });
+    expect(rows.map((r) => r.variant)).toEqual([
+      "training.batch=50,precision.activations=bfloat16",
+      "training.batch=50,precision.activations=binary16",
+      "training.batch=150,precision.activations=bfloat16",
+      "training.batch=150,precision.activations=binary16",
+    ]);
+    expect(rows.map((r) => (r.status === "ok" ? `${r.summary.verdict}:${r.summary.formats[0]!.format}` : "error"))).toEqual([
+      "fits:bfloat16",
+      "fits:binary16",
+      "at-risk:bfloat16",
+      "at-risk:binary16",
+    ]);
+  });
+
+  test("planBatch numbers rows in input order", () => {
+    const plan = planBatch(
+      [
+        { kind: "file", path: "a.yaml", argument: "a.yaml" },
+        { kind: "error", argument: "x", message: "x: no such file or folder" },
+      ],
+      variantsOf([parseVaryOption("training.batch=1,2")]),
+    );
+    expect(plan.map((p) => ("task" in p ? p.task.variant?.name : p.row.index))).toEqual(["training.batch=1", "training.batch=2", 2]);
+  });
+});
