@@ -5,7 +5,7 @@
  */
 import { didYouMean } from "./issues.js";
 import type { RawIssue } from "./messages.js";
-import { MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./schema.js";
+import { inputKindCount, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./schema.js";
 
 type Path = (string | number)[];
 
@@ -75,10 +75,11 @@ function checkNames(lists: LayerList[], found: Found): Set<string> {
         return;
       }
       const explicit = typeof record(item)?.["name"] === "string";
+      const how = explicit ? "" : " (made from its type and index)";
       found.errors.push({
         path: explicit ? [...list.path, index, "name"] : [...list.path, index],
         atKey: false,
-        message: `duplicate layer name ${JSON.stringify(name)}: ${pathText([...list.path, earlier])} has it too`,
+        message: `duplicate layer name ${JSON.stringify(name)}${how}: ${pathText([...list.path, earlier])} has it too`,
       });
     });
   }
@@ -209,7 +210,7 @@ function checkEmbedding(root: Record<string, unknown>, lists: LayerList[], found
       if (layerType(item) !== "embedding") return;
       const path = [...list.path, index];
       if (first && samePath(path, first.path)) {
-        if (input && !("tokens" in input)) {
+        if (input && inputKindCount(input) === 1 && !("tokens" in input)) {
           found.errors.push({
             path: ["input"],
             atKey: false,
@@ -221,7 +222,7 @@ function checkEmbedding(root: Record<string, unknown>, lists: LayerList[], found
       }
     });
   }
-  if (input && "tokens" in input && first && !firstIsEmbedding) {
+  if (input && inputKindCount(input) === 1 && "tokens" in input && first && !firstIsEmbedding) {
     const type = layerType(first.item);
     found.errors.push({
       path: ["input", "tokens"],
@@ -369,12 +370,12 @@ function checkTraining(root: Record<string, unknown>, found: Found): void {
         found.errors.push({
           path: [...base, "momentum"],
           atKey: true,
-          message: `momentum applies to kind momentum only${kind.startsWith("adam") ? "; adam and adamw use betas" : ""}`,
+          message: `"momentum" is for kind momentum only, not ${kind}${kind.startsWith("adam") ? " (adam and adamw use betas)" : ""}`,
         });
       }
       for (const key of ["betas", "epsilon"]) {
         if (key in optimizer && (kind === "sgd" || kind === "momentum")) {
-          found.errors.push({ path: [...base, key], atKey: true, message: `${key} applies to adam and adamw only, not ${kind}` });
+          found.errors.push({ path: [...base, key], atKey: true, message: `"${key}" is for adam and adamw only, not ${kind}` });
         }
       }
     }

@@ -6,7 +6,7 @@
 import type * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
 import { didYouMean } from "./issues.js";
-import { BARE_LAYER_TYPES, LAYER_TYPES, MAX_SIZE } from "./schema.js";
+import { BARE_LAYER_TYPES, FINAL_MESSAGE, LAYER_TYPES, MAX_SIZE } from "./schema.js";
 
 /** A validation problem before it is given a file position. */
 export interface RawIssue {
@@ -15,6 +15,7 @@ export interface RawIssue {
   atKey: boolean;
   message: string;
 }
+
 
 /** Common names of formats that are not how headroom spells them. */
 const FORMAT_ALIASES: Record<string, string> = {
@@ -131,7 +132,7 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
         return `must have at most ${maximum} items, got ${Array.isArray(input) ? input.length : "more"}`;
       }
       if (maximum === MAX_SIZE && issue.inclusive) {
-        return `${describeValue(input)} is beyond any real network (at most ${MAX_SIZE}); check the value`;
+        return `beyond any real network: at most ${MAX_SIZE}, got ${describeValue(input)}; check the value`;
       }
       const bound = issue.inclusive ? `at most ${maximum}` : `below ${maximum}`;
       return `must be ${bound}, got ${describeValue(input)}`;
@@ -140,7 +141,7 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
       return unknownValueMessage(input, issue.values);
     case "invalid_format":
       if (issue.format === "regex") {
-        return `invalid name ${describeValue(input)}: use letters, digits, "-" and "_", not starting with "-"`;
+        return `invalid name ${JSON.stringify(input)}: use letters, digits, "-" and "_", not starting with "-"`;
       }
       return `invalid ${issue.format}: ${describeValue(input)}`;
     case "unrecognized_keys": {
@@ -187,7 +188,8 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
 function isKindMismatch(branch: readonly z.core.$ZodIssue[], input: unknown): boolean {
   return branch.some((sub) => {
     if (sub.path.length !== 0) return false;
-    if (sub.code === "invalid_type") return true;
+    // a number that is not finite fails on its value, not its kind
+    if (sub.code === "invalid_type") return !(typeof sub.input === "number" && (sub.expected === "number" || sub.expected === "int"));
     if (sub.code === "invalid_value") return sub.values.every((value) => typeof value !== typeof input);
     return false;
   });
@@ -204,6 +206,10 @@ export function flattenIssues(issues: readonly z.core.$ZodIssue[], prefix: (stri
   const out: RawIssue[] = [];
   for (const issue of issues) {
     const path = [...prefix, ...issue.path.map((segment) => (typeof segment === "number" ? segment : String(segment)))];
+    if (issue.message.startsWith(FINAL_MESSAGE)) {
+      out.push({ path, atKey: false, message: issue.message.slice(FINAL_MESSAGE.length) });
+      continue;
+    }
     if (issue.code === "invalid_union" && issue.errors.length > 0) {
       const candidates = issue.errors.filter((branch) => !isKindMismatch(branch, issue.input));
       if (candidates.length > 0) {
@@ -227,5 +233,19 @@ export function flattenIssues(issues: readonly z.core.$ZodIssue[], prefix: (stri
     }
     out.push({ path, atKey: false, message });
   }
-  return out;
+  return prefix.length === 0 ? dropMissingExplainedByTypos(out) : out;
+}
+
+/** A required key reported missing next to an unknown key that is its misspelling: the typo says it all. */
+function dropMissingExplainedByTypos(issues: RawIssue[]): RawIssue[] {
+  const parent = (path: readonly (string | number)[]) => JSON.stringify(path.slice(0, -1));
+  const typos = new Set<string>();
+  for (const issue of issues) {
+    const meant = /^unknown key "[^"]*" \(did you mean "([^"]+)"\?\)$/.exec(issue.message)?.[1];
+    if (meant !== undefined) typos.add(`${parent(issue.path)}|${meant}`);
+  }
+  return issues.filter((issue) => {
+    const missing = /^missing key "([^"]+)"$/.exec(issue.message)?.[1];
+    return missing === undefined || !typos.has(`${parent(issue.path)}|${missing}`);
+  });
 }

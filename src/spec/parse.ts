@@ -52,7 +52,10 @@ export function parseSpec(text: string, source: string): SpecResult {
       line: error.linePos?.[0]?.line ?? 0,
       column: error.linePos?.[0]?.col ?? 0,
       path: "",
-      message: `yaml: ${yamlMessage(error.message)}`,
+      message:
+        error.code === "MULTIPLE_DOCS"
+          ? "yaml: a spec is one document, and this file has more than one (a second '---' line)"
+          : `yaml: ${yamlMessage(error.message)}`,
     }));
     return { ok: false, issues: issues.sort(byPosition) };
   }
@@ -67,6 +70,14 @@ export function parseSpec(text: string, source: string): SpecResult {
   }
   if (data === null || data === undefined) {
     return { ok: false, issues: [{ file: source, line: 1, column: 1, path: "", message: "the spec is empty: it needs at least input, training and layers" }] };
+  }
+  if (typeof data !== "object" || Array.isArray(data)) {
+    const at = locateIn(doc as Document, counter, []);
+    const got = Array.isArray(data) ? "a list" : `${JSON.stringify(data)}`;
+    return {
+      ok: false,
+      issues: [{ file: source, line: at.line, column: at.column, path: "", message: `a spec is a mapping of keys (input, training, layers, …), got ${got}` }],
+    };
   }
   const toIssue = (raw: RawIssue): SpecIssue => {
     const at = locateIn(doc as Document, counter, raw.path, raw.atKey);

@@ -5,6 +5,9 @@
 import * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
 
+/** Marks a union's own message as the one to show (see messages.ts). */
+export const FINAL_MESSAGE = "\u0001";
+
 /** Largest size (width, vocabulary, batch…) accepted: larger is beyond any real network and likely a typo. */
 export const MAX_SIZE = 1e9;
 /** Largest element count accepted for one tensor the spec fixes on its own (input batch, embedding table). */
@@ -360,7 +363,8 @@ const layerList = z.array(layer).min(1);
 // input and training
 
 const input = z
-  .union([
+  .union(
+    [
     z
       .strictObject({
         features: size("Features per position"),
@@ -381,8 +385,25 @@ const input = z
         scale: positive("Root-mean-square of a pixel value (default 1)").default(1),
       })
       .describe("Images, channels first"),
-  ])
+    ],
+    {
+      error: (issue) =>
+        issue.code === "invalid_union" && inputKindCount(issue.input) > 1
+          ? `${FINAL_MESSAGE}give one kind of input: features (with positions, scale), tokens, or channels, height and width (with scale)`
+          : issue.code === "invalid_union" && inputKindCount(issue.input) === 0 && typeof issue.input === "object" && issue.input !== null
+            ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width`
+            : undefined,
+    },
+  )
   .describe("One sample: { features, positions?, scale? }, { tokens } or { channels, height, width, scale? }");
+
+const INPUT_KINDS = [["features", "positions"], ["tokens"], ["channels", "height", "width"]] as const;
+
+/** How many kinds of input an `input` mapping names keys of (features, tokens, image). */
+export function inputKindCount(value: unknown): number {
+  if (typeof value !== "object" || value === null) return 0;
+  return INPUT_KINDS.filter((keys) => keys.some((key) => key in value)).length;
+}
 
 const loss = z
   .discriminatedUnion("kind", [
