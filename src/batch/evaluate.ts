@@ -3,7 +3,7 @@
  * ending in a row, never in an exception. The reading and the judging are passed in, so the worker
  * thread, the library and the tests share this code.
  */
-import { formatSpecIssue, parseSpec, type NetworkSpec, type SpecIssue } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import type { RowError, SpecSummary } from "./types.js";
 import { varyText, VaryError, type Variant } from "./vary.js";
 
@@ -61,6 +61,24 @@ function readError(file: string, error: unknown): TaskResult {
 }
 
 /**
+ * An error that names spec paths (check's CheckInputError carries `issues: { path, message }[]`), as
+ * positioned issues; undefined for any other error.
+ */
+function positionedIssues(error: unknown, locate: (path: SpecPath) => SpecPosition, file: string): SpecIssue[] | undefined {
+  const issues = (error as { issues?: unknown } | null)?.issues;
+  if (!Array.isArray(issues) || issues.length === 0) return undefined;
+  const out: SpecIssue[] = [];
+  for (const issue of issues as unknown[]) {
+    const path = (issue as { path?: unknown }).path;
+    const message = (issue as { message?: unknown }).message;
+    if (!Array.isArray(path) || typeof message !== "string") return undefined;
+    const at = locate(path as SpecPath);
+    out.push({ ...at, file: at.file || file, path: formatSpecPath(path as SpecPath), message });
+  }
+  return out;
+}
+
+/**
  * Evaluate one task. Bad files, bad specs and bad --vary keys give input errors with positions;
  * a failure inside the judge gives an internal error. Never throws.
  */
@@ -94,6 +112,8 @@ export async function evaluateTask(task: SpecTask, hooks: EvaluateHooks): Promis
   try {
     return { status: "ok", summary: await hooks.judge(parsed.spec) };
   } catch (error) {
+    const located = positionedIssues(error, parsed.locate, task.file);
+    if (located) return { status: "error", error: issuesError(located, originalLine) };
     const message = error instanceof Error ? error.message : String(error);
     // library functions throw RangeError for values the spec allowed but the model cannot take;
     // anything else is a failure of headroom itself

@@ -57,6 +57,11 @@ describe("evaluateTask", () => {
     const range = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new RangeError("width 0"); } });
     expect(range).toMatchObject({ error: { kind: "input" } });
   });
+  test("a judge error naming spec paths becomes a positioned input error", async () => {
+    const graphError = Object.assign(new RangeError("cannot build"), { issues: [{ path: ["layers", 2, "width"], message: "must equal the classes, 4" }] });
+    const result = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw graphError; } });
+    expect(result).toMatchObject({ error: { kind: "input", message: "a.yaml:10:27: layers[2].width: must equal the classes, 4", position: { line: 10, column: 27 } } });
+  });
   test("issuesError counts the other problems", () => {
     const error = issuesError([
       { file: "f.yaml", line: 2, column: 3, path: "a", message: "m1" },
