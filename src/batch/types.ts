@@ -6,8 +6,8 @@
 /** The judgement of a spec, a format or a tensor. Ordered: fits < at risk < fails. */
 export type SummaryVerdict = "fits" | "at-risk" | "fails";
 
-/** How the number of a risk reads: a per-step probability, a share, binades, or a relative error. */
-export type RiskMeasure = "probability" | "share" | "binades" | "relative-error";
+/** How the number of a risk reads: a per-step probability, a share, binades, a relative error, or a count of elements. */
+export type RiskMeasure = "probability" | "share" | "binades" | "relative-error" | "count";
 
 /** The loss-scale part of a summary. */
 export type LossScaleSummary =

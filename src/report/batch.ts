@@ -6,7 +6,7 @@ import { FORMAT_NAMES } from "../formats/names.js";
 import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
 import { renderCsv, type CsvField } from "./csv.js";
 import { escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
-import { formatBinades, formatPercent, formatPowerOfTwo, formatProbability, formatValue } from "./number.js";
+import { formatBinades, formatCompactCount, formatPercent, formatPowerOfTwo, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable, type Cell, type TableColumn } from "./table.js";
 
@@ -53,6 +53,8 @@ export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">):
       return `${formatBinades(worst.value)} binades`;
     case "relative-error":
       return formatValue(worst.value, 2);
+    case "count":
+      return `${formatCompactCount(worst.value)} elements`;
   }
 }
 
