@@ -1,2 +1,10 @@
-/** Public exports of src/measure. */
-export {};
+/** Public exports of src/measure: tensor-file readers, streaming statistics, cast judgements. */
+export * from "./types.js";
+export * from "./classes.js";
+export { MAX_HEADER_BYTES, parseSafetensorsHeader, parseSafetensorsPrefix } from "./safetensors.js";
+export { NPY_MAGIC, parseNpyHeader, parseNpyPrefix } from "./npy.js";
+export { openTensorFile, streamTensors, CHUNK_ELEMENTS, type OpenTensorFile, type TensorSink, type ProgressCallback } from "./read.js";
+export { bucketPlan, TensorAccumulator, exactBinade, type BucketPlan, type CastCounts, type TensorTally } from "./accumulate.js";
+export { ChannelAccumulator, type ChannelAxis } from "./channels.js";
+export * from "./scan.js";
+export { expandPaths, isPattern } from "./paths.js";

@@ -1,0 +1,314 @@
+/**
+ * Streaming per-tensor statistics: feed chunks of values, get exact counts at the end.
+ *
+ * Why buckets: the class of a value under a cast (flushed, subnormal, normal, saturated, overflowed) depends only on
+ * its magnitude, and the class boundaries are few. Magnitudes are binned by their top bits (sign dropped: the exponent
+ * and the leading fraction bits, 32768 buckets); a bucket whose smallest and largest magnitudes fall in the same class
+ * for every target is counted by one increment per element, and its class counts are added once at the end. The few
+ * buckets a class boundary cuts through, plus zeros, infinities, NaNs and subnormal inputs, take an exact per-element
+ * path through the format module's rounding. The counts are therefore exact, at the price of a histogram increment.
+ */
+import { CAST_CLASS, CAST_CLASS_COUNT, type CastClass, type CastTarget } from "./classes.js";
+
+const BUCKETS = 32768;
+/** binade k counts magnitudes in [2^k, 2^(k+1)); binary64 spans k = −1074 … 1023 */
+const BINADE_OFFSET = 1100;
+const BINADES = 2200;
+
+const SLOW_IMPURE = 1;
+const SLOW_SPECIAL = 2;
+
+/** Bucket tables for one input width (binary32 or binary64 values) and one list of targets. Build once per scan. */
+export interface BucketPlan {
+  width: 32 | 64;
+  targets: readonly CastTarget[];
+  /** per bucket: 0 fast, 1 a class boundary cuts it, 2 zero/subnormal/inf/NaN inputs */
+  slow: Uint8Array;
+  /** per bucket and target: the class every magnitude of a pure bucket has (bucket × targets.length + target) */
+  classes: Uint8Array;
+  /** per bucket: its binade (for non-special buckets) */
+  binade: Int16Array;
+}
+
+const plans = new WeakMap<readonly CastTarget[], Map<number, BucketPlan>>();
+
+/** The bucket tables for binary32 (width 32) or binary64 (width 64) inputs, cached per target list. */
+export function bucketPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
+  let byWidth = plans.get(targets);
+  if (!byWidth) plans.set(targets, (byWidth = new Map()));
+  let plan = byWidth.get(width);
+  if (!plan) byWidth.set(width, (plan = buildPlan(width, targets)));
+  return plan;
+}
+
+function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
+  const slow = new Uint8Array(BUCKETS);
+  const classes = new Uint8Array(BUCKETS * targets.length);
+  const binade = new Int16Array(BUCKETS);
+  const f32 = new Float32Array(1);
+  const u32 = new Uint32Array(f32.buffer);
+  const f64 = new Float64Array(1);
+  const w64 = new Uint32Array(f64.buffer);
+  // binary32 buckets: 8 exponent bits + 7 fraction bits; binary64: 11 exponent bits + 4 fraction bits
+  const fractionBits = width === 32 ? 7 : 4;
+  const topField = width === 32 ? 255 : 2047;
+  const bias = width === 32 ? 127 : 1023;
+  for (let b = 0; b < BUCKETS; b++) {
+    const field = b >> fractionBits;
+    if (field === 0 || field === topField) {
+      slow[b] = SLOW_SPECIAL;
+      continue;
+    }
+    binade[b] = field - bias;
+    let low: number;
+    let high: number;
+    if (width === 32) {
+      u32[0] = b << 16;
+      low = f32[0]!;
+      u32[0] = (b << 16) | 0xffff;
+      high = f32[0]!;
+    } else {
+      w64[0] = 0;
+      w64[1] = b << 16;
+      low = f64[0]!;
+      w64[0] = 0xffffffff;
+      w64[1] = (b << 16) | 0xffff;
+      high = f64[0]!;
+    }
+    for (let t = 0; t < targets.length; t++) {
+      const target = targets[t]!;
+      const lowClass = target.classify(low);
+      classes[b * targets.length + t] = lowClass;
+      // classes are monotone in the magnitude, so equal ends mean one class for the whole bucket
+      if (target.classify(high) !== lowClass) slow[b] = SLOW_IMPURE;
+    }
+  }
+  return { width, targets, slow, classes, binade };
+}
+
+/** Per-target cast counts of one tensor. */
+export interface CastCounts {
+  flushed: number;
+  subnormal: number;
+  saturated: number;
+  overflowed: number;
+}
+
+/** The raw statistics of one tensor, before verdicts and scales are derived. */
+export interface TensorTally {
+  elements: number;
+  zeros: number;
+  infinities: number;
+  nans: number;
+  /** smallest nonzero finite magnitude, null when there is none */
+  minNonzero: number | null;
+  /** largest finite magnitude, null when no element is finite */
+  maxAbs: number | null;
+  /** sum of squares of the finite elements */
+  sumOfSquares: number;
+  /** nonzero finite magnitudes per binade: [binade k, count] for 2^k ≤ |x| < 2^(k+1), ascending */
+  binades: [number, number][];
+  /** approximate quantiles of the nonzero finite magnitudes (bucket resolution: 2^-7 relative for binary32 inputs) */
+  quantile(q: number): number | null;
+  /** counts per target, in the order of the plan's targets */
+  casts: CastCounts[];
+}
+
+/** Accumulates one tensor's statistics over chunks of binary32 or binary64 values. */
+export class TensorAccumulator {
+  private readonly hist = new Float64Array(BUCKETS);
+  private readonly binadeExtra = new Float64Array(BINADES);
+  private readonly classCounts: Float64Array;
+  private elements = 0;
+  private zeros = 0;
+  private infinities = 0;
+  private nans = 0;
+  private sumOfSquares = 0;
+  private maxAbs = -1;
+  private minNonzero = Infinity;
+
+  constructor(private readonly plan: BucketPlan) {
+    this.classCounts = new Float64Array(plan.targets.length * CAST_CLASS_COUNT);
+  }
+
+  /** Feed the next values (binary32 values for a width-32 plan, binary64 for width 64). */
+  add(values: Float32Array | Float64Array): void {
+    this.elements += values.length;
+    if (values instanceof Float32Array) {
+      if (this.plan.width !== 32) throw new TypeError("a binary64 bucket plan was given binary32 values");
+      this.add32(values);
+    } else {
+      if (this.plan.width !== 64) throw new TypeError("a binary32 bucket plan was given binary64 values");
+      this.add64(values);
+    }
+  }
+
+  private add32(values: Float32Array): void {
+    const bits = new Uint32Array(values.buffer, values.byteOffset, values.length);
+    const hist = this.hist;
+    const slow = this.plan.slow;
+    const n = values.length;
+    let zeros = 0;
+    let sum = 0;
+    let maxU = 0;
+    let minU = 0x7fffffff;
+    for (let i = 0; i < n; i++) {
+      const u = bits[i]! & 0x7fffffff;
+      if (u === 0) {
+        zeros++;
+        continue;
+      }
+      const b = u >>> 16;
+      if (slow[b] !== 0) {
+        this.slowValue(values[i]!, b);
+        continue;
+      }
+      hist[b] = hist[b]! + 1;
+      if (u > maxU) maxU = u;
+      if (u < minU) minU = u;
+      const x = values[i]!;
+      sum += x * x;
+    }
+    this.zeros += zeros;
+    this.sumOfSquares += sum;
+    if (maxU !== 0) {
+      const f = new Float32Array(new Uint32Array([maxU, minU]).buffer);
+      if (f[0]! > this.maxAbs) this.maxAbs = f[0]!;
+      if (f[1]! < this.minNonzero) this.minNonzero = f[1]!;
+    }
+  }
+
+  private add64(values: Float64Array): void {
+    const bits = new Uint32Array(values.buffer, values.byteOffset, values.length * 2);
+    const hist = this.hist;
+    const slow = this.plan.slow;
+    const n = values.length;
+    let zeros = 0;
+    let sum = 0;
+    let max = this.maxAbs;
+    let min = this.minNonzero;
+    for (let i = 0; i < n; i++) {
+      const x = values[i]!;
+      if (x === 0) {
+        zeros++;
+        continue;
+      }
+      // little-endian host: the high word (sign, exponent, top fraction bits) is the second
+      const b = (bits[2 * i + 1]! & 0x7fffffff) >>> 16;
+      if (slow[b] !== 0) {
+        this.slowValue(x, b);
+        continue;
+      }
+      hist[b] = hist[b]! + 1;
+      const a = Math.abs(x);
+      if (a > max) max = a;
+      if (a < min) min = a;
+      sum += x * x;
+    }
+    this.zeros += zeros;
+    this.sumOfSquares += sum;
+    if (max > this.maxAbs) this.maxAbs = max;
+    if (min < this.minNonzero) this.minNonzero = min;
+  }
+
+  /** The exact path: boundary buckets, subnormal inputs, infinities and NaNs. */
+  private slowValue(x: number, bucket: number): void {
+    const targets = this.plan.targets;
+    const counts = this.classCounts;
+    if (Number.isNaN(x)) {
+      this.nans++;
+      for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
+      return;
+    }
+    for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
+    if (!Number.isFinite(x)) {
+      this.infinities++;
+      return;
+    }
+    const a = Math.abs(x);
+    this.sumOfSquares += x * x;
+    if (a > this.maxAbs) this.maxAbs = a;
+    if (a < this.minNonzero) this.minNonzero = a;
+    if (this.plan.slow[bucket] === SLOW_IMPURE) this.hist[bucket]! += 1;
+    else this.binadeExtra[exactBinade(a) + BINADE_OFFSET]! += 1;
+  }
+
+  /** The statistics so far. */
+  tally(): TensorTally {
+    const { plan, hist } = this;
+    const targets = plan.targets;
+    const T = targets.length;
+    const counts = Float64Array.from(this.classCounts);
+    const binadeCounts = Float64Array.from(this.binadeExtra);
+    for (let b = 0; b < BUCKETS; b++) {
+      const c = hist[b]!;
+      if (c === 0) continue;
+      binadeCounts[plan.binade[b]! + BINADE_OFFSET]! += c;
+      if (plan.slow[b] !== 0) continue;
+      for (let t = 0; t < T; t++) counts[t * CAST_CLASS_COUNT + plan.classes[b * T + t]!]! += c;
+    }
+    const binades: [number, number][] = [];
+    for (let k = 0; k < BINADES; k++) if (binadeCounts[k]! > 0) binades.push([k - BINADE_OFFSET, binadeCounts[k]!]);
+    const casts = targets.map((_, t) => {
+      const at = (cls: CastClass) => counts[t * CAST_CLASS_COUNT + cls]!;
+      return {
+        flushed: at(CAST_CLASS.flushed),
+        subnormal: at(CAST_CLASS.subnormal),
+        saturated: at(CAST_CLASS.saturated),
+        overflowed: at(CAST_CLASS.overflowed),
+      };
+    });
+    const nonzeroFinite = this.elements - this.zeros - this.infinities - this.nans;
+    return {
+      elements: this.elements,
+      zeros: this.zeros,
+      infinities: this.infinities,
+      nans: this.nans,
+      minNonzero: nonzeroFinite > 0 ? this.minNonzero : null,
+      maxAbs: this.elements - this.infinities - this.nans > 0 ? Math.max(this.maxAbs, 0) : null,
+      sumOfSquares: this.sumOfSquares,
+      binades,
+      casts,
+      quantile: (q) => this.quantile(q, nonzeroFinite),
+    };
+  }
+
+  /** Magnitude below which a share q of the nonzero finite elements lie: the upper edge of the bucket that reaches q. */
+  private quantile(q: number, total: number): number | null {
+    if (total <= 0 || !(q >= 0 && q <= 1)) return null;
+    const want = q * total;
+    // walk magnitudes upward: subnormal-input binades (kept apart) interleave with the buckets by binade
+    const { plan, hist } = this;
+    let seen = 0;
+    let extraBinade = 0;
+    const extraBelow = (binade: number): number | null => {
+      for (; extraBinade < BINADES && extraBinade - BINADE_OFFSET < binade; extraBinade++) {
+        seen += this.binadeExtra[extraBinade]!;
+        if (seen >= want) return 2 ** (extraBinade - BINADE_OFFSET + 1);
+      }
+      return null;
+    };
+    for (let b = 0; b < BUCKETS; b++) {
+      if (plan.slow[b] === SLOW_SPECIAL || hist[b] === 0) continue;
+      const hit = extraBelow(plan.binade[b]!);
+      if (hit !== null) return Math.min(hit, this.maxAbs);
+      seen += hist[b]!;
+      if (seen >= want) return Math.min(bucketTop(plan.width, b), this.maxAbs);
+    }
+    const hit = extraBelow(BINADES);
+    return hit !== null ? Math.min(hit, this.maxAbs) : this.maxAbs;
+  }
+}
+
+function bucketTop(width: 32 | 64, b: number): number {
+  if (width === 32) return new Float32Array(Uint32Array.of(((b + 1) << 16) >>> 0).buffer)[0]!;
+  return new Float64Array(Uint32Array.of(0, ((b + 1) << 16) >>> 0).buffer)[0]!;
+}
+
+/** floor(log2(a)) for a positive finite a, exact (Math.log2 can be off by one next to powers of two). */
+export function exactBinade(a: number): number {
+  let k = Math.floor(Math.log2(a));
+  if (2 ** k > a) k--;
+  else if (2 ** (k + 1) <= a) k++;
+  return k;
+}

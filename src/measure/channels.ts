@@ -1,0 +1,135 @@
+/**
+ * Per-channel outlier statistics: for a vector (a norm gain), which element stands out; for a matrix, the rms and the
+ * largest magnitude of every row and every column. Outlier channels (max/rms of 20 to 100,000 in large models,
+ * common practice) decide whether one per-tensor scale can serve an 8-bit format.
+ */
+
+/** Outlier figures along one axis of a matrix (or over the elements of a vector). */
+export interface ChannelAxis {
+  /** "row" = first index, "column" = second index, "element" = the entries of a vector */
+  axis: "row" | "column" | "element";
+  channels: number;
+  /** median over channels of the channel rms (of the magnitude itself for "element") */
+  medianRms: number;
+  /** the channel with the largest rms, and that rms */
+  loudest: number;
+  loudestRms: number;
+  /** loudestRms / medianRms: how far the loudest channel stands out (null when the median is 0) */
+  rmsRatio: number | null;
+  /** the largest value of (channel max |x|) / (channel rms), and the channel it belongs to */
+  maxOverRms: number;
+  maxOverRmsChannel: number;
+}
+
+/** Accumulates per-row and per-column (or per-element) statistics of a rank-1 or rank-2 tensor, in storage order. */
+export class ChannelAccumulator {
+  private readonly fastSum: Float64Array;
+  private readonly fastMax: Float64Array;
+  private readonly slowSum: Float64Array;
+  private readonly slowMax: Float64Array;
+  private readonly fastCount: number;
+  private readonly rows: number;
+  private readonly columns: number;
+
+  /**
+   * @param shape [n] or [rows, columns]
+   * @param order storage order: "C" (last index fastest) or "F" (first index fastest)
+   */
+  constructor(shape: readonly number[], private readonly order: "C" | "F") {
+    if (shape.length === 1) {
+      this.rows = shape[0]!;
+      this.columns = 1;
+    } else if (shape.length === 2) {
+      this.rows = shape[0]!;
+      this.columns = shape[1]!;
+    } else {
+      throw new RangeError(`channel statistics need a vector or a matrix; got shape [${shape.join(", ")}]`);
+    }
+    const vector = shape.length === 1;
+    this.fastCount = vector ? this.rows : order === "C" ? this.columns : this.rows;
+    const slowCount = vector ? 1 : order === "C" ? this.rows : this.columns;
+    this.fastSum = new Float64Array(this.fastCount);
+    this.fastMax = new Float64Array(this.fastCount);
+    this.slowSum = new Float64Array(slowCount);
+    this.slowMax = new Float64Array(slowCount);
+    this.vector = vector;
+  }
+
+  private readonly vector: boolean;
+
+  /** Feed values whose first element has storage index `first`. Non-finite values are left out. */
+  add(values: Float32Array | Float64Array, first: number): void {
+    const fastCount = this.fastCount;
+    const fastSum = this.fastSum;
+    const fastMax = this.fastMax;
+    if (fastCount === 0) return;
+    let slow = Math.floor(first / fastCount);
+    let fast = first - slow * fastCount;
+    let slowSum = 0;
+    let slowMax = 0;
+    const n = values.length;
+    for (let i = 0; i < n; i++) {
+      const x = values[i]!;
+      const a = x < 0 ? -x : x;
+      if (a < Infinity) {
+        const s = a * a;
+        fastSum[fast]! += s;
+        if (a > fastMax[fast]!) fastMax[fast] = a;
+        slowSum += s;
+        if (a > slowMax) slowMax = a;
+      }
+      if (++fast === fastCount) {
+        this.slowSum[slow]! += slowSum;
+        if (slowMax > this.slowMax[slow]!) this.slowMax[slow] = slowMax;
+        slowSum = 0;
+        slowMax = 0;
+        fast = 0;
+        slow++;
+      }
+    }
+    if (fast !== 0) {
+      this.slowSum[slow]! += slowSum;
+      if (slowMax > this.slowMax[slow]!) this.slowMax[slow] = slowMax;
+    }
+  }
+
+  /** The outlier figures: one axis for a vector, rows then columns for a matrix. */
+  result(): ChannelAxis[] {
+    if (this.vector) return [axisFigures("element", this.fastSum, this.fastMax, 1)];
+    const [rowSum, rowMax, colSum, colMax] =
+      this.order === "C"
+        ? [this.slowSum, this.slowMax, this.fastSum, this.fastMax]
+        : [this.fastSum, this.fastMax, this.slowSum, this.slowMax];
+    return [axisFigures("row", rowSum, rowMax, this.columns), axisFigures("column", colSum, colMax, this.rows)];
+  }
+}
+
+function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float64Array, perChannel: number): ChannelAxis {
+  const n = sums.length;
+  const rms = new Float64Array(n);
+  for (let i = 0; i < n; i++) rms[i] = perChannel > 0 ? Math.sqrt(sums[i]! / perChannel) : 0;
+  let loudest = 0;
+  let maxOverRms = 0;
+  let maxOverRmsChannel = 0;
+  for (let i = 0; i < n; i++) {
+    if (rms[i]! > rms[loudest]!) loudest = i;
+    const ratio = rms[i]! > 0 ? maxes[i]! / rms[i]! : 0;
+    if (ratio > maxOverRms) {
+      maxOverRms = ratio;
+      maxOverRmsChannel = i;
+    }
+  }
+  const sorted = Float64Array.from(rms).sort();
+  const medianRms = n === 0 ? 0 : n % 2 === 1 ? sorted[(n - 1) / 2]! : (sorted[n / 2 - 1]! + sorted[n / 2]!) / 2;
+  const loudestRms = n === 0 ? 0 : rms[loudest]!;
+  return {
+    axis,
+    channels: n,
+    medianRms,
+    loudest,
+    loudestRms,
+    rmsRatio: medianRms > 0 ? loudestRms / medianRms : null,
+    maxOverRms,
+    maxOverRmsChannel,
+  };
+}

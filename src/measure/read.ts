@@ -1,0 +1,186 @@
+/**
+ * The tensor-file readers: the only file I/O of headroom outside the CLI. Files are opened read-only; the header is
+ * validated before any data is read; data is read in fixed-size chunks into buffers allocated once per file, and
+ * never outside the byte ranges the header names.
+ */
+import { open, type FileHandle } from "node:fs/promises";
+import { basename } from "node:path";
+import { chunkDecoder, type ChunkDecoder } from "./decode.js";
+import { NPY_MAGIC, parseNpyHeader, parseNpyPrefix } from "./npy.js";
+import { parseSafetensorsHeader, parseSafetensorsPrefix } from "./safetensors.js";
+import { DTYPE_BYTES, type ScanIssue, type TensorFileLayout, type TensorLayout } from "./types.js";
+
+/** Elements per chunk: 1 Mi elements (8 MiB of binary64, 4 MiB of binary32). */
+export const CHUNK_ELEMENTS = 1 << 20;
+
+/** An open tensor file with its validated layout. Close it with `close()`. */
+export interface OpenTensorFile {
+  layout: TensorFileLayout;
+  handle: FileHandle;
+}
+
+/** Open `path` read-only and validate its header: safetensors, or .npy when it starts with the .npy magic. */
+export async function openTensorFile(path: string): Promise<{ ok: true; file: OpenTensorFile } | { ok: false; issue: ScanIssue }> {
+  let handle: FileHandle;
+  try {
+    handle = await open(path, "r");
+  } catch (error) {
+    return { ok: false, issue: { file: path, byteOffset: 0, message: `cannot open: ${describeFsError(error)}` } };
+  }
+  try {
+    const stat = await handle.stat();
+    if (!stat.isFile()) throw new NotAFile();
+    const size = stat.size;
+    const first = await readExactly(handle, 0, Math.min(12, size));
+    const isNpy = first.length >= 6 && NPY_MAGIC.every((b, i) => first[i] === b);
+    const parsed = isNpy ? await readNpyLayout(handle, path, first, size) : await readSafetensorsLayout(handle, path, first, size);
+    if (!parsed.ok) {
+      await handle.close();
+      return parsed;
+    }
+    return { ok: true, file: { layout: parsed.layout, handle } };
+  } catch (error) {
+    await handle.close().catch(() => {});
+    const message = error instanceof NotAFile ? "not a regular file" : `cannot read: ${describeFsError(error)}`;
+    return { ok: false, issue: { file: path, byteOffset: 0, message } };
+  }
+}
+
+class NotAFile extends Error {}
+
+async function readSafetensorsLayout(handle: FileHandle, path: string, first: Uint8Array, size: number) {
+  const prefix = parseSafetensorsPrefix(path, first, size);
+  if (!prefix.ok) return prefix;
+  const header = await readExactly(handle, 8, prefix.headerLength);
+  return parseSafetensorsHeader(path, header, size);
+}
+
+async function readNpyLayout(handle: FileHandle, path: string, first: Uint8Array, size: number) {
+  const prefix = parseNpyPrefix(path, first, size);
+  if (!prefix.ok) return prefix;
+  const header = await readExactly(handle, prefix.prefixLength, prefix.headerLength);
+  const name = basename(path).replace(/\.npy$/i, "");
+  return parseNpyHeader(path, name, prefix.version, prefix.prefixLength, header, size);
+}
+
+/** Read `length` bytes at `position` into a fresh buffer; shorter when the file ends first. */
+async function readExactly(handle: FileHandle, position: number, length: number): Promise<Buffer> {
+  const buffer = Buffer.alloc(length);
+  let filled = 0;
+  while (filled < length) {
+    const { bytesRead } = await handle.read(buffer, filled, length - filled, position + filled);
+    if (bytesRead === 0) break;
+    filled += bytesRead;
+  }
+  return filled === length ? buffer : buffer.subarray(0, filled);
+}
+
+/** Receives decoded values of each tensor, chunk by chunk, in file order. */
+export interface TensorSink {
+  /** a tensor's data is about to be read */
+  begin(tensor: TensorLayout): void;
+  /** the next values of the tensor; `first` is the index of values[0] within the tensor (storage order) */
+  chunk(tensor: TensorLayout, values: Float32Array | Float64Array, first: number): void;
+  /** all of the tensor's data was read (not called when reading failed) */
+  end(tensor: TensorLayout): void;
+}
+
+/** Progress in bytes of tensor data read. */
+export type ProgressCallback = (bytesRead: number) => void;
+
+interface ChunkPlan {
+  tensor: TensorLayout;
+  position: number;
+  bytes: number;
+  first: number;
+  last: boolean;
+}
+
+/**
+ * Stream every tensor of an open file through `sink`. Reads are double-buffered: the next chunk is read while the
+ * current one is decoded and measured. A short read (the file shrank after its header was checked) becomes an issue
+ * for that tensor and reading goes on with the next one.
+ */
+export async function streamTensors(file: OpenTensorFile, sink: TensorSink, onProgress?: ProgressCallback): Promise<ScanIssue[]> {
+  const issues: ScanIssue[] = [];
+  const tensors = file.layout.tensors;
+  if (tensors.length === 0) return issues;
+  const widest = Math.max(...tensors.map((t) => DTYPE_BYTES[t.dtype]));
+  // allocated here, not from Node's pool, so each buffer starts at offset 0 of its own ArrayBuffer and views stay aligned
+  const buffers = [Buffer.allocUnsafeSlow(CHUNK_ELEMENTS * widest), Buffer.allocUnsafeSlow(CHUNK_ELEMENTS * widest)];
+  const decoders = new Map<string, ChunkDecoder>();
+  const decoderFor = (tensor: TensorLayout): ChunkDecoder => {
+    const key = `${tensor.dtype}/${tensor.littleEndian}`;
+    let decoder = decoders.get(key);
+    if (!decoder) decoders.set(key, (decoder = chunkDecoder(tensor.dtype, tensor.littleEndian, CHUNK_ELEMENTS)));
+    return decoder;
+  };
+
+  const plans = planChunks(tensors);
+  let done = 0;
+  let failed: TensorLayout | undefined;
+  const read = (plan: ChunkPlan, buffer: Buffer) => readInto(file.handle, buffer, plan.bytes, plan.position);
+  let pending = plans.length > 0 ? read(plans[0]!, buffers[0]!) : undefined;
+  for (let i = 0; i < plans.length; i++) {
+    const plan = plans[i]!;
+    const buffer = buffers[i % 2]!;
+    const got = await pending!;
+    const next = plans[i + 1];
+    pending = next ? read(next, buffers[(i + 1) % 2]!) : undefined;
+    if (failed === plan.tensor) continue;
+    if (plan.first === 0) sink.begin(plan.tensor);
+    if (got < plan.bytes) {
+      failed = plan.tensor;
+      issues.push({
+        file: file.layout.file,
+        tensor: plan.tensor.name,
+        byteOffset: plan.position + got,
+        message: "file ended before the tensor's data did (it changed after its header was read)",
+      });
+      continue;
+    }
+    const elementBytes = DTYPE_BYTES[plan.tensor.dtype];
+    const values = decoderFor(plan.tensor).decode(buffer, plan.bytes / elementBytes);
+    sink.chunk(plan.tensor, values, plan.first);
+    if (plan.last) sink.end(plan.tensor);
+    done += plan.bytes;
+    onProgress?.(done);
+  }
+  if (pending) await pending;
+  return issues;
+}
+
+function planChunks(tensors: readonly TensorLayout[]): ChunkPlan[] {
+  const plans: ChunkPlan[] = [];
+  for (const tensor of tensors) {
+    const elementBytes = DTYPE_BYTES[tensor.dtype];
+    if (tensor.elements === 0) {
+      plans.push({ tensor, position: tensor.begin, bytes: 0, first: 0, last: true });
+      continue;
+    }
+    for (let first = 0; first < tensor.elements; first += CHUNK_ELEMENTS) {
+      const count = Math.min(CHUNK_ELEMENTS, tensor.elements - first);
+      plans.push({ tensor, position: tensor.begin + first * elementBytes, bytes: count * elementBytes, first, last: first + count === tensor.elements });
+    }
+  }
+  return plans;
+}
+
+/** Fill buffer[0, length) from the file at `position`; resolves to the bytes actually read (fewer at end of file). */
+async function readInto(handle: FileHandle, buffer: Buffer, length: number, position: number): Promise<number> {
+  let filled = 0;
+  while (filled < length) {
+    const { bytesRead } = await handle.read(buffer, filled, length - filled, position + filled);
+    if (bytesRead === 0) break;
+    filled += bytesRead;
+  }
+  return filled;
+}
+
+function describeFsError(error: unknown): string {
+  const code = (error as { code?: unknown }).code;
+  if (code === "ENOENT") return "no such file";
+  if (code === "EACCES" || code === "EPERM") return "permission denied";
+  if (code === "EISDIR") return "is a folder";
+  return error instanceof Error ? error.message : String(error);
+}
