@@ -8,6 +8,7 @@
  * buckets a class boundary cuts through, plus zeros, infinities, NaNs and subnormal inputs, take an exact per-element
  * path through the format module's rounding. The counts are therefore exact, at the price of a histogram increment.
  */
+import { binadeOf } from "../formats/index.js";
 import { CAST_CLASS, CAST_CLASS_COUNT, type CastClass, type CastTarget } from "./classes.js";
 
 const BUCKETS = 32768;
@@ -43,7 +44,8 @@ export function bucketPlan(width: 32 | 64, targets: readonly CastTarget[]): Buck
 
 function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
   const slow = new Uint8Array(BUCKETS);
-  const classes = new Uint8Array(BUCKETS * targets.length);
+  const T = targets.length;
+  const classes = new Uint8Array(BUCKETS * T);
   const binade = new Int16Array(BUCKETS);
   const f32 = new Float32Array(1);
   const u32 = new Uint32Array(f32.buffer);
@@ -53,34 +55,49 @@ function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
   const fractionBits = width === 32 ? 7 : 4;
   const topField = width === 32 ? 255 : 2047;
   const bias = width === 32 ? 127 : 1023;
+  /** smallest (or, with `top`, largest) magnitude of bucket b */
+  const edge = (b: number, top: boolean): number => {
+    if (width === 32) {
+      u32[0] = top ? (b << 16) | 0xffff : b << 16;
+      return f32[0]!;
+    }
+    w64[0] = top ? 0xffffffff : 0;
+    w64[1] = top ? (b << 16) | 0xffff : b << 16;
+    return f64[0]!;
+  };
   for (let b = 0; b < BUCKETS; b++) {
     const field = b >> fractionBits;
-    if (field === 0 || field === topField) {
-      slow[b] = SLOW_SPECIAL;
-      continue;
-    }
-    binade[b] = field - bias;
-    let low: number;
-    let high: number;
-    if (width === 32) {
-      u32[0] = b << 16;
-      low = f32[0]!;
-      u32[0] = (b << 16) | 0xffff;
-      high = f32[0]!;
-    } else {
-      w64[0] = 0;
-      w64[1] = b << 16;
-      low = f64[0]!;
-      w64[0] = 0xffffffff;
-      w64[1] = (b << 16) | 0xffff;
-      high = f64[0]!;
-    }
-    for (let t = 0; t < targets.length; t++) {
-      const target = targets[t]!;
-      const lowClass = target.classify(low);
-      classes[b * targets.length + t] = lowClass;
-      // classes are monotone in the magnitude, so equal ends mean one class for the whole bucket
-      if (target.classify(high) !== lowClass) slow[b] = SLOW_IMPURE;
+    if (field === 0 || field === topField) slow[b] = SLOW_SPECIAL;
+    else binade[b] = field - bias;
+  }
+  // the buckets of normal inputs are contiguous, from field 1 to field topField − 1
+  const first = 1 << fractionBits;
+  const last = (topField << fractionBits) - 1;
+  for (let t = 0; t < T; t++) {
+    const target = targets[t]!;
+    const classAt = (b: number) => target.classify(edge(b, false));
+    // each class is an interval of magnitudes: equal classes at both ends of a run of buckets mean one class
+    // throughout, so bisection finds the few buckets where the class changes
+    const fill = (lo: number, hi: number, classLo: number, classHi: number): void => {
+      if (classLo === classHi) {
+        for (let b = lo; b <= hi; b++) classes[b * T + t] = classLo;
+        return;
+      }
+      if (hi - lo <= 1) {
+        classes[lo * T + t] = classLo;
+        classes[hi * T + t] = classHi;
+        return;
+      }
+      const mid = (lo + hi) >> 1;
+      const classMid = classAt(mid);
+      fill(lo, mid, classLo, classMid);
+      fill(mid, hi, classMid, classHi);
+    };
+    fill(first, last, classAt(first), classAt(last));
+    // a bucket is cut by a boundary exactly when its largest magnitude has another class than its smallest
+    for (let b = first; b <= last; b++) {
+      const next = b < last ? classes[(b + 1) * T + t] : -1;
+      if (next !== classes[b * T + t] && target.classify(edge(b, true)) !== classes[b * T + t]) slow[b] = SLOW_IMPURE;
     }
   }
   return { width, targets, slow, classes, binade };
@@ -230,7 +247,7 @@ export class TensorAccumulator {
     if (a > this.maxAbs) this.maxAbs = a;
     if (a < this.minNonzero) this.minNonzero = a;
     if (this.plan.slow[bucket] === SLOW_IMPURE) this.hist[bucket]! += 1;
-    else this.binadeExtra[exactBinade(a) + BINADE_OFFSET]! += 1;
+    else this.binadeExtra[binadeOf(a) + BINADE_OFFSET]! += 1;
   }
 
   /** The statistics so far. */
@@ -303,12 +320,4 @@ export class TensorAccumulator {
 function bucketTop(width: 32 | 64, b: number): number {
   if (width === 32) return new Float32Array(Uint32Array.of(((b + 1) << 16) >>> 0).buffer)[0]!;
   return new Float64Array(Uint32Array.of(0, ((b + 1) << 16) >>> 0).buffer)[0]!;
-}
-
-/** floor(log2(a)) for a positive finite a, exact (Math.log2 can be off by one next to powers of two). */
-export function exactBinade(a: number): number {
-  let k = Math.floor(Math.log2(a));
-  if (2 ** k > a) k--;
-  else if (2 ** (k + 1) <= a) k++;
-  return k;
 }

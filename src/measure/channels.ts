@@ -70,7 +70,7 @@ export class ChannelAccumulator {
     const n = values.length;
     for (let i = 0; i < n; i++) {
       const x = values[i]!;
-      const a = x < 0 ? -x : x;
+      const a = Math.abs(x);
       if (a < Infinity) {
         const s = a * a;
         fastSum[fast]! += s;

@@ -2,7 +2,8 @@
  * `scan`: measure every float tensor of one or more tensor files, and judge a cast of each into target formats.
  * Files are read one after the other; a bad file becomes issues in its result and the scan goes on.
  */
-import { bucketPlan, exactBinade, TensorAccumulator, type TensorTally } from "./accumulate.js";
+import { binadeOf } from "../formats/index.js";
+import { bucketPlan, TensorAccumulator, type TensorTally } from "./accumulate.js";
 import { ChannelAccumulator, type ChannelAxis } from "./channels.js";
 import { CAST_CLASS, type CastTarget } from "./classes.js";
 import { openTensorFile, streamTensors, type TensorSink } from "./read.js";
@@ -246,13 +247,13 @@ export function scaleRange(target: CastTarget, tally: Pick<TensorTally, "minNonz
   const keeps = (k: number) => target.classify(timesPow2(minNonzero, k)) !== CAST_CLASS.flushed;
   const normal = (k: number) => target.classify(timesPow2(minNonzero, k)) === CAST_CLASS.normal;
   // start next to the answer, then step: each predicate is monotone in k
-  let highest = exactBinade(target.maxFinite) - exactBinade(maxAbs);
+  let highest = binadeOf(target.maxFinite) - binadeOf(maxAbs);
   while (!fitsTop(highest)) highest--;
   while (fitsTop(highest + 1)) highest++;
-  let lowest = exactBinade(target.minSubnormal) - exactBinade(minNonzero);
+  let lowest = binadeOf(target.minSubnormal) - binadeOf(minNonzero);
   while (!keeps(lowest)) lowest++;
   while (keeps(lowest - 1)) lowest--;
-  let lowestNormal = exactBinade(target.minNormal) - exactBinade(minNonzero);
+  let lowestNormal = binadeOf(target.minNormal) - binadeOf(minNonzero);
   while (!normal(lowestNormal)) lowestNormal++;
   while (normal(lowestNormal - 1)) lowestNormal--;
   // scaled |x| < 2^m  ⟺  binade(x) < m − highest, exact because 2^highest only shifts the exponent
@@ -266,8 +267,8 @@ export function scaleRange(target: CastTarget, tally: Pick<TensorTally, "minNonz
     lowestNormal,
     highest,
     fits: lowest <= highest,
-    belowSubnormalAtHighest: below(exactBinade(target.minSubnormal)),
-    belowNormalAtHighest: below(exactBinade(target.minNormal)),
+    belowSubnormalAtHighest: below(binadeOf(target.minSubnormal)),
+    belowNormalAtHighest: below(binadeOf(target.minNormal)),
   };
 }
 

@@ -1,0 +1,104 @@
+/**
+ * `headroom scan` as users run it (the built binary). Files come from the independent writer in test/measure/writers.ts.
+ */
+import { afterAll, describe, expect, it } from "vitest";
+import { runCli } from "../helpers/run.js";
+import { encode, npyBytes, safetensorsBytes, scratch } from "../measure/writers.js";
+
+const files = scratch();
+afterAll(() => files.cleanup());
+
+const safe = files.write("shard-1.safetensors", safetensorsBytes([{ name: "layers.0.weight", dtype: "F32", shape: [2, 2], data: encode("F32", [0.5, -0.25, 1, 2]) }]));
+// 7e4 overflows binary16 (largest finite 65504, IEEE 754-2019); 1e-9 flushes (below 2^-25)
+const risky = files.write(
+  "shard-2.safetensors",
+  safetensorsBytes([
+    { name: "embed.weight", dtype: "BF16", shape: [3], data: encode("BF16", [7e4, 1, -1]) },
+    { name: "tiny", dtype: "F32", shape: [2], data: encode("F32", [1e-9, 1]) },
+    { name: "ids", dtype: "I32", shape: [1], data: encode("I32", [3]) },
+  ]),
+);
+const gains = files.write("gains.npy", npyBytes(1, "<f4", [4], encode("F32", [1, 1, 1, 1])));
+
+describe("headroom scan", () => {
+  it("exit 0 when every tensor is safe; the table says so", () => {
+    const run = runCli(["scan", safe, gains]);
+    expect(run.stderr).toBe("");
+    expect(run.status).toBe(0);
+    expect(run.stdout).toMatch(/scanned 2 files: 2 tensors measured/);
+    expect(run.stdout).toMatch(/every tensor is safe to cast into every target/);
+  });
+
+  it("exit 1 with findings: only tensors with findings unless --all", () => {
+    const run = runCli(["scan", safe, risky]);
+    expect(run.status).toBe(1);
+    expect(run.stdout).toMatch(/shard-2\.safetensors: embed\.weight\s+BF16/);
+    expect(run.stdout).toMatch(/embed\.weight\s+binary16\s+breaks\s+0\s+0\s+1\s+0/);
+    expect(run.stdout).toMatch(/tiny\s+binary16\s+lossy\s+1\s/);
+    expect(run.stdout).not.toMatch(/layers\.0\.weight/);
+    expect(run.stdout).toMatch(/1 skipped \(not floating point\)/);
+    const all = runCli(["scan", safe, risky, "--all"]);
+    expect(all.stdout).toMatch(/layers\.0\.weight/);
+  });
+
+  it("--json: the whole result as data, with counts per target", () => {
+    const run = runCli(["scan", risky, "--json", "--to", "binary16,e4m3", "--all"]);
+    expect(run.status).toBe(1);
+    const result = JSON.parse(run.stdout);
+    expect(result.targets.map((t: { format: string; overflow: string }) => [t.format, t.overflow])).toEqual([
+      ["binary16", "infinity-or-nan"],
+      ["e4m3", "saturate"],
+    ]);
+    const embed = result.files[0].tensors.find((t: { name: string }) => t.name === "embed.weight");
+    expect(embed.casts[0]).toMatchObject({ format: "binary16", overflowed: 1, verdict: "breaks" });
+    // bfloat16 keeps 8 significant bits: 7e4 is stored as 70144 (common practice: round to nearest even)
+    expect(embed.maxAbs).toBe(70144);
+    expect(embed.casts[1]).toMatchObject({ format: "e4m3", saturated: 1, verdict: "lossy" });
+    expect(result.files[0].skipped).toEqual([{ name: "ids", dtype: "I32", shape: [1], reason: "not floating point" }]);
+  });
+
+  it("--csv: one row per tensor and target (RFC 4180)", () => {
+    const run = runCli(["scan", risky, "--csv", "--to", "binary16"]);
+    const lines = run.stdout.trimEnd().split(/\r?\n/);
+    expect(lines[0]).toMatch(/^file,tensor,dtype,shape,elements,zeros,infinities,nans,min_nonzero,max_abs,rms,max_over_rms,format,overflow_mode,verdict/);
+    expect(lines).toHaveLength(3);
+    expect(lines[1]).toMatch(/,embed\.weight,BF16,3,3,0,0,0,1,70144,/);
+  });
+
+  it("a quoted glob scans the shards; --overflow saturate turns an overflow into clipping", () => {
+    const run = runCli(["scan", `${files.dir}/shard-*.safetensors`, "--to", "binary16", "--overflow", "saturate", "--json"]);
+    const result = JSON.parse(run.stdout);
+    expect(result.files.map((f: { file: string }) => f.file.slice(files.dir.length + 1))).toEqual(["shard-1.safetensors", "shard-2.safetensors"]);
+    const embed = result.files[1].tensors.find((t: { name: string }) => t.name === "embed.weight");
+    expect(embed.casts[0]).toMatchObject({ saturated: 1, overflowed: 0, verdict: "lossy" });
+  });
+
+  it("a bad file is an error line naming the file, tensor and byte offset; the others are still scanned; exit 2", () => {
+    const bytes = safetensorsBytes([
+      { name: "a", dtype: "F32", shape: [2], data: encode("F32", [1, 2]) },
+      { name: "b", dtype: "F32", shape: [2], data: encode("F32", [3, 7e4]) },
+    ]);
+    const broken = files.write("broken.safetensors", bytes.subarray(0, bytes.length - 2));
+    const run = runCli(["scan", broken, risky, "--all"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toMatch(new RegExp(`^headroom: ${broken}: tensor "b", byte \\d+: data \\[\\d+, \\d+\\) runs past the end of the file`, "m"));
+    expect(run.stdout).toMatch(/embed\.weight/);
+    expect(run.stdout).toMatch(/broken\.safetensors: a\s/);
+  });
+
+  it("input errors: an unknown format, --json with --csv, a bad tolerance", () => {
+    const unknown = runCli(["scan", safe, "--to", "binary16,fp12"]);
+    expect(unknown.status).toBe(2);
+    expect(unknown.stderr).toMatch(/--to: unknown format "fp12"; accepted: binary16, bfloat16/);
+    expect(runCli(["scan", safe, "--json", "--csv"]).status).toBe(2);
+    const tolerance = runCli(["scan", safe, "--tolerance", "2"]);
+    expect(tolerance.status).toBe(2);
+    expect(tolerance.stderr).toMatch(/--tolerance "2": expected a share between 0 and 1/);
+  });
+
+  it("--help documents the exit codes; no progress bar when stderr is not a terminal", () => {
+    const help = runCli(["scan", "--help"]);
+    expect(help.stdout).toMatch(/Exit code: 0 when every tensor is safe in every target, 1 when/);
+    expect(runCli(["scan", risky]).stderr).toBe("");
+  });
+});
