@@ -7,6 +7,7 @@
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
+import { textOf } from "../ops/common.js";
 import { residualBranchSeed } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { Factor, Gradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
@@ -29,9 +30,10 @@ export interface PredictOptions {
   lossScale?: number;
 }
 
-/** A node of the ledger tree: tensors share the factors they have in common. */
+/** A node of the ledger tree: tensors share the factors they have in common; wording is resolved on demand. */
 interface LedgerNode {
-  entry: LedgerEntry;
+  layer: string;
+  factor: Factor;
   parent: LedgerNode | null;
 }
 
@@ -68,18 +70,16 @@ const NORMS = new Set(["layer-norm", "rms-norm", "batch-norm"]);
 function chain(node: LedgerNode | null, layer: string, factors: readonly Factor[], build: boolean): LedgerNode | null {
   if (!build) return null;
   let current = node;
-  for (const f of factors) {
-    current = {
-      entry: { layer, rule: f.rule, log2Factor: f.ratio > 0 ? 0.5 * Math.log2(f.ratio) : -Infinity, source: f.source },
-      parent: current,
-    };
-  }
+  for (const factor of factors) current = { layer, factor, parent: current };
   return current;
 }
 
 function materialise(node: LedgerNode | null, profile: MagnitudeProfile): LedgerEntry[] {
   const out: LedgerEntry[] = [];
-  for (let n = node; n !== null; n = n.parent) out.push(n.entry);
+  for (let n = node; n !== null; n = n.parent) {
+    const f = n.factor;
+    out.push({ layer: n.layer, rule: textOf(f.rule), log2Factor: f.ratio > 0 ? 0.5 * Math.log2(f.ratio) : -Infinity, source: f.source });
+  }
   out.reverse();
   // the factors above give √meanSquare; two closing entries bring it to the reported rms
   const meanSquare = profile.meanSquare ?? 0;
@@ -464,6 +464,63 @@ function assumptions(spec: NetworkSpec): string[] {
 }
 
 /**
+ * One predicted tensor. The ledger is built on demand: materialising every tensor's chain would cost layers² for
+ * deep networks. It is an own, enumerable accessor (one shared descriptor, so every tensor keeps the same hidden
+ * class), so spreads, JSON and structured clones see the entries.
+ */
+class PredictedTensor {
+  id: string;
+  layer: string;
+  layerIndex: number;
+  family: TensorPrediction["family"];
+  role: TensorRole;
+  slot: PlanSlot;
+  shape: number[];
+  start: MagnitudeProfile;
+  end: MagnitudeProfile;
+  declare ledger: LedgerEntry[];
+  source: "predicted" | "measured";
+  #node: LedgerNode | null;
+  #cached: LedgerEntry[] | undefined;
+
+  constructor(a: TensorRecord, end: MagnitudeProfile) {
+    this.id = a.id;
+    this.layer = a.layer;
+    this.layerIndex = a.layerIndex;
+    this.family = a.family;
+    this.role = a.role;
+    this.slot = a.slot;
+    this.shape = a.shape;
+    this.start = a.profile;
+    this.end = end;
+    Object.defineProperty(this, "ledger", LEDGER_PROPERTY);
+    this.source = "predicted";
+    this.#node = a.ledger;
+    this.#cached = undefined;
+  }
+
+  static ledgerOf(tensor: PredictedTensor): LedgerEntry[] {
+    tensor.#cached ??= materialise(tensor.#node, tensor.start);
+    return tensor.#cached;
+  }
+
+  static setLedger(tensor: PredictedTensor, value: LedgerEntry[]): void {
+    tensor.#cached = value;
+  }
+}
+
+const LEDGER_PROPERTY: PropertyDescriptor = {
+  enumerable: true,
+  configurable: true,
+  get(this: PredictedTensor): LedgerEntry[] {
+    return PredictedTensor.ledgerOf(this);
+  },
+  set(this: PredictedTensor, value: LedgerEntry[]) {
+    PredictedTensor.setLedger(this, value);
+  },
+};
+
+/**
  * Predict the magnitude profile of every tensor of one training step, at initialisation and at the end of the
  * training horizon, with the ledger of per-layer factors and the operation hazards.
  * @example predict(graph, spec).tensors.find((t) => t.role === "activation-gradient")?.start.rms
@@ -478,33 +535,7 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
     const a = start.tensors[i] as TensorRecord;
     const b = end.tensors[i];
     if (b === undefined || b.id !== a.id) throw new RangeError(`internal: start and end passes disagree at tensor ${a.id}`);
-    const tensor = {
-      id: a.id,
-      layer: a.layer,
-      layerIndex: a.layerIndex,
-      family: a.family,
-      role: a.role,
-      slot: a.slot,
-      shape: a.shape,
-      start: a.profile,
-      end: b.profile,
-      source: "predicted",
-    } as TensorPrediction;
-    let cached: LedgerEntry[] | undefined;
-    const node = a.ledger;
-    const profile = a.profile;
-    // the ledger is built on demand: materialising every tensor's chain would cost layers² for deep networks
-    Object.defineProperty(tensor, "ledger", {
-      enumerable: true,
-      configurable: true,
-      get(): LedgerEntry[] {
-        cached ??= materialise(node, profile);
-        return cached;
-      },
-      set(value: LedgerEntry[]) {
-        cached = value;
-      },
-    });
+    const tensor: TensorPrediction = new PredictedTensor(a, b.profile);
     tensors.push(tensor);
   }
   const endHazards = new Map(end.hazards.map((h) => [h.key, h.site]));

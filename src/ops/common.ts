@@ -1,6 +1,6 @@
 /** Helpers shared by the analytic rules of several layer families. */
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
-import type { Factor, Gradient, Signal } from "./types.js";
+import type { Factor, Gradient, Signal, Text } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
@@ -14,8 +14,13 @@ export const SOURCES = {
 export const LINEAR_KAPPA = 2;
 
 /** A ledger factor. */
-export function factor(ratio: number, rule: string, source: string): Factor {
+export function factor(ratio: number, rule: Text, source: string): Factor {
   return { ratio, rule, source };
+}
+
+/** Resolve lazy ledger wording. */
+export function textOf(text: Text): string {
+  return typeof text === "string" ? text : text();
 }
 
 /** The named weight of a layer; throws when the graph lacks it (a graph builder bug, not user input). */

@@ -54,12 +54,15 @@ export interface Gradient {
   fresh?: { width: number; kappa: number };
 }
 
+/** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */
+export type Text = string | (() => string);
+
 /** One multiplicative step, for the ledger: the second moment goes from `before` to `before·ratio`. */
 export interface Factor {
   /** ratio of second moments per element (zeros included) */
   ratio: number;
   /** the rule in words with its numbers, e.g. "dense: fan_in·var_w = 1.000" */
-  rule: string;
+  rule: Text;
   /** the published source of the rule */
   source: string;
 }
@@ -150,7 +153,7 @@ export interface WeightGradientMoment {
   zeroFraction: number;
   logVar: number;
   /** the rule in words */
-  rule: string;
+  rule: Text;
 }
 
 /** Backward result of one layer. */

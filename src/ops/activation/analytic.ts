@@ -8,7 +8,7 @@ import { featureWidth, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { SOURCES, factor, fmt } from "../common.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
 
 /** What the activation backward rule needs. */
@@ -72,7 +72,7 @@ export function pointwiseForward(
   name: ActivationName,
   slope: number,
   input: Signal,
-): { output: Signal; stash: ActivationStash; ratio: number; rule: string } {
+): { output: Signal; stash: ActivationStash; ratio: number; rule: Text } {
   const keep = 1 - input.zeroFraction;
   const qNonzero = keep > 0 ? input.q / keep : 0;
   const m = ctx.moments(name, qNonzero, slope);
@@ -93,19 +93,19 @@ export function pointwiseForward(
     output,
     stash: { input, derivativeSecond, derivativeZeroFraction, kappaBackward: kappa.backward },
     ratio: input.q > 0 ? q / input.q : 0,
-    rule: `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
+    rule: () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
   };
 }
 
 /** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
-export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient): { gradient: Gradient; ratio: number; rule: string } {
+export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient): { gradient: Gradient; ratio: number; rule: Text } {
   let logVar = output.logVar;
   if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
   const zeroFraction = 1 - (1 - stash.derivativeZeroFraction) * (1 - output.zeroFraction);
   return {
     gradient: { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar },
     ratio: stash.derivativeSecond,
-    rule: `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`,
+    rule: () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`,
   };
 }
 
@@ -130,7 +130,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       const ratio = stash.probabilitySecond;
       return {
         input: { q: ratio * output.q, zeroFraction: output.zeroFraction, shape: "gaussian", logVar: output.logVar },
-        factors: [factor(ratio, `softmax: E[p²] = ${fmt(ratio)}`, SOFTMAX_SOURCE)],
+        factors: [factor(ratio, () => `softmax: E[p²] = ${fmt(ratio)}`, SOFTMAX_SOURCE)],
         inner: [],
         weightGradients: [],
       };
@@ -162,7 +162,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
   };
   return {
     output,
-    factors: [factor(input.q > 0 ? second / input.q : 0, `softmax over ${n}: E[p²] = ${fmt(second)} at logit variance ${fmt(logitVariance)}`, SOFTMAX_SOURCE)],
+    factors: [factor(input.q > 0 ? second / input.q : 0, () => `softmax over ${n}: E[p²] = ${fmt(second)} at logit variance ${fmt(logitVariance)}`, SOFTMAX_SOURCE)],
     role: "activation",
     inner: [],
     hazards: [

@@ -165,7 +165,9 @@ function compute(name: ActivationName, q: number, slope: number): ActivationMome
   }
 }
 
-const cache = new Map<string, ActivationMoments>();
+/** name → slope → q → moments (nested maps: formatting q into a string key costs more than the lookup) */
+const cache = new Map<ActivationName, Map<number, Map<number, ActivationMoments>>>();
+let cached = 0;
 
 /**
  * Moments of an activation at input variance q (z ~ N(0, q)), memoised.
@@ -178,12 +180,18 @@ export function activationMoments(name: ActivationName, q: number, slope = 0): A
     }
     throw new RangeError(`activation input variance must be a finite number ≥ 0, got ${q}`);
   }
-  const key = `${name}|${q}|${slope}`;
-  let hit = cache.get(key);
+  let bySlope = cache.get(name);
+  if (bySlope === undefined) cache.set(name, (bySlope = new Map()));
+  let byQ = bySlope.get(slope);
+  if (byQ === undefined) bySlope.set(slope, (byQ = new Map()));
+  let hit = byQ.get(q);
   if (hit === undefined) {
     hit = compute(name, q, slope);
-    if (cache.size > 50_000) cache.clear();
-    cache.set(key, hit);
+    if (++cached > 50_000) {
+      cache.clear();
+      cached = 0;
+    }
+    byQ.set(q, hit);
   }
   return hit;
 }

@@ -162,15 +162,15 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const outGain = ctx.variance(wo) * wo.fanIn;
     const output = linearOutput(outGain * heads.q, heads.logVar, D);
 
-    const qFactor = (gain: number, name: string): Factor => factor(gain, `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
+    const qFactor = (gain: number, name: string): Factor => factor(gain, () => `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
     const logitFactor = factor(
       query.signal.q > 0 ? logitVariance / query.signal.q : 0,
-      `attention logits: d·E[k²]·c² = ${d}·${fmt(key.signal.q)}·${fmt(scale2)}`,
+      () => `attention logits: d·E[k²]·c² = ${d}·${fmt(key.signal.q)}·${fmt(scale2)}`,
       SOURCE,
     );
-    const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
-    const headFactor = factor(rows.sumSquares, `attention average: Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}`, AVERAGE_SOURCE);
-    const outFactor = factor(outGain, `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
+    const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, () => `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
+    const headFactor = factor(rows.sumSquares, () => `attention average: Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}`, AVERAGE_SOURCE);
+    const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
 
     const inner_: InnerTensor[] = [
       { suffix: "query", role: "pre-activation", shape: projection, elements: projectionElements, signal: query.signal, factors: [qFactor(query.gain, "query")] },
@@ -269,9 +269,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
-    const headFactor = factor(outGain, `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
-    const probFactor = factor(d * stash.value.q, `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
-    const logitFactor = factor(stash.rows.elementSecond * unmaskedShare, `softmax Jacobian: E[p²] = ${fmt(stash.rows.elementSecond)}`, SOFTMAX_SOURCE);
+    const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
+    const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
+    const logitFactor = factor(stash.rows.elementSecond * unmaskedShare, () => `softmax Jacobian: E[p²] = ${fmt(stash.rows.elementSecond)}`, SOFTMAX_SOURCE);
     const innerGradients: InnerGradient[] = [
       { suffix: "heads", shape: projection, elements: projectionElements, gradient: heads, factors: [headFactor] },
       {
@@ -287,21 +287,21 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         shape: projection,
         elements: projectionElements,
         gradient: g(queryQ),
-        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), `attention query: Σp²·d·c²·E[v²]·E[k²] = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²]·E[k²] = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
       },
       {
         suffix: "key",
         shape: projection,
         elements: projectionElements,
         gradient: g(keyQ),
-        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), `attention key: Σp²·d·c²·E[v²]·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²]·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
       },
       {
         suffix: "value",
         shape: projection,
         elements: projectionElements,
         gradient: g(valueQ),
-        factors: [headFactor, factor(stash.rows.sumSquares, `attention value: Σ_i p_ij² = ${fmt(stash.rows.sumSquares)}`, AVERAGE_SOURCE)],
+        factors: [headFactor, factor(stash.rows.sumSquares, () => `attention value: Σ_i p_ij² = ${fmt(stash.rows.sumSquares)}`, AVERAGE_SOURCE)],
       },
     ];
     const inputQ = ctx.variance(wq) * wq.fanOut * queryQ + ctx.variance(wk) * wk.fanOut * keyQ + ctx.variance(wv) * wv.fanOut * valueQ;
@@ -313,14 +313,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       terms: N,
       zeroFraction: 0,
       logVar,
-      rule: `sum of ${N} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${N} products (batch × positions) of input and gradient`,
     });
     const D = layer.input.layout === "features" ? layer.input.features : 1;
     return {
       input: linearGradient(inputQ, heads.logVar, D),
       factors: [
         headFactor,
-        factor(headsQ > 0 ? inputQ / headsQ : 0, `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward),
+        factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward),
       ],
       inner: innerGradients,
       weightGradients: [

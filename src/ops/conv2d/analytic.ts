@@ -19,7 +19,7 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     // connections per input element = (output elements × in-channels × k²) / input elements
     const connections = (sampleElements(layer.output) * w.fanIn) / sampleElements(layer.input);
     const gain = ctx.variance(w) * connections;
-    const rule = `conv2d: outputs fed per input·var_w = ${fmt(connections)}·${fmt(ctx.variance(w))} = ${fmt(gain)}`;
+    const rule = (): string => `conv2d: outputs fed per input·var_w = ${fmt(connections)}·${fmt(ctx.variance(w))} = ${fmt(gain)}`;
     return linearBackward(ctx, layer, stash, output, gain, rule, inChannels);
   },
 };

@@ -6,7 +6,7 @@
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import { SOURCES, factor, fmt, linearGradient, linearOutput, maybeWeight, weightOf } from "../common.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
 export interface DenseStash {
@@ -22,7 +22,7 @@ export const denseRule: AnalyticRule<DenseStash> = {
     const w = weightOf(layer, "weight");
     const gain = ctx.variance(w) * w.fanOut;
     const inWidth = w.fanIn;
-    return linearBackward(ctx, layer, stash, output, gain, `dense: fan_out·var_w = ${fmt(gain)}`, inWidth);
+    return linearBackward(ctx, layer, stash, output, gain, () => `dense: fan_out·var_w = ${fmt(gain)}`, inWidth);
   },
 };
 
@@ -37,7 +37,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const outWidth = w.shape[0] ?? 1;
   const output = linearOutput(q, input.logVar, outWidth);
   const ratio = input.q > 0 ? q / input.q : 0;
-  const rule = `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
+  const rule = (): string => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
   return {
     output,
@@ -67,7 +67,7 @@ export function linearBackward(
   stash: DenseStash,
   output: Gradient,
   gain: number,
-  rule: string,
+  rule: Text,
   inWidth: number,
 ): BackwardResult {
   const terms = ctx.batch * positionCount(layer.output);
@@ -79,7 +79,7 @@ export function linearBackward(
       terms,
       zeroFraction: 0,
       logVar: stash.input.logVar + output.logVar,
-      rule: `sum of ${terms} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${terms} products (batch × positions) of input and gradient`,
     },
   ];
   if (maybeWeight(layer, "bias") !== undefined) {
@@ -90,7 +90,7 @@ export function linearBackward(
       terms,
       zeroFraction: 0,
       logVar: output.logVar,
-      rule: `sum of ${terms} gradients (batch × positions)`,
+      rule: () => `sum of ${terms} gradients (batch × positions)`,
     });
   }
   return {

@@ -19,7 +19,7 @@ export const dropoutRule: AnalyticRule<null> = {
     if (input.bound !== undefined) output.bound = input.bound * ratio;
     return {
       output,
-      factors: [factor(ratio, `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)],
+      factors: [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)],
       role: "activation",
       inner: [],
       hazards: [],
@@ -31,6 +31,6 @@ export const dropoutRule: AnalyticRule<null> = {
     const keep = 1 - rate;
     const ratio = keep > 0 ? 1 / keep : 0;
     const input: Gradient = { ...output, q: output.q * ratio, zeroFraction: rate + keep * output.zeroFraction };
-    return { input, factors: [factor(ratio, `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)], inner: [], weightGradients: [] };
+    return { input, factors: [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)], inner: [], weightGradients: [] };
   },
 };

@@ -28,7 +28,7 @@ export const embeddingRule: AnalyticRule<null> = {
     };
     return {
       output,
-      factors: [factor(input.q > 0 ? q / input.q : q, `embedding: var_table·multiplier² = ${fmt(ctx.variance(table))}·${fmt(spec.multiplier ** 2)}`, SOURCE)],
+      factors: [factor(input.q > 0 ? q / input.q : q, () => `embedding: var_table·multiplier² = ${fmt(ctx.variance(table))}·${fmt(spec.multiplier ** 2)}`, SOURCE)],
       role: "activation",
       inner: [],
       hazards: [],
@@ -53,7 +53,7 @@ export const embeddingRule: AnalyticRule<null> = {
           terms: lookups,
           zeroFraction: Math.exp(-lambda),
           logVar: output.logVar,
-          rule: `${fmt(lambda)} lookups per row on average (${lookups} lookups over ${spec.vocabulary} rows)`,
+          rule: () => `${fmt(lambda)} lookups per row on average (${lookups} lookups over ${spec.vocabulary} rows)`,
         },
       ],
     };

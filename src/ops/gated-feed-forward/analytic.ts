@@ -62,10 +62,10 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     };
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D);
-    const gateFactor = factor(gateGain, `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
-    const upFactor = factor(upGain, `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
-    const productFactor = factor(m.second, `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);
-    const downFactor = factor(downGain, `down: fan_in·var_w = ${fmt(downGain)}`, SOURCES.lengthMap);
+    const gateFactor = factor(gateGain, () => `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
+    const upFactor = factor(upGain, () => `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
+    const productFactor = factor(m.second, () => `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);
+    const downFactor = factor(downGain, () => `down: fan_in·var_w = ${fmt(downGain)}`, SOURCES.lengthMap);
     const termSignal = (s: Signal, v: number): Signal => ({ ...s, q: s.q * v, mean: 0 });
     return {
       output,
@@ -120,16 +120,16 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const gateQ = stash.gateDerivativeSecond * stash.up.q * productGradient.q;
     const upGradient: Gradient = { q: upQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
-    const downFactor = factor(downGain, `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
+    const downFactor = factor(downGain, () => `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
     const inner: InnerGradient[] = [
       { suffix: "product", shape: hiddenShape, elements: hiddenElements, gradient: productGradient, factors: [downFactor] },
-      { suffix: "up", shape: hiddenShape, elements: hiddenElements, gradient: upGradient, factors: [downFactor, factor(stash.gateSecond, `up: E[φ(g)²] = ${fmt(stash.gateSecond)}`, SOURCE)] },
+      { suffix: "up", shape: hiddenShape, elements: hiddenElements, gradient: upGradient, factors: [downFactor, factor(stash.gateSecond, () => `up: E[φ(g)²] = ${fmt(stash.gateSecond)}`, SOURCE)] },
       {
         suffix: "gate",
         shape: hiddenShape,
         elements: hiddenElements,
         gradient: gateGradient,
-        factors: [downFactor, factor(stash.gateDerivativeSecond * stash.up.q, `gate: E[φ'(g)²]·E[u²] = ${fmt(stash.gateDerivativeSecond)}·${fmt(stash.up.q)}`, SOURCE)],
+        factors: [downFactor, factor(stash.gateDerivativeSecond * stash.up.q, () => `gate: E[φ'(g)²]·E[u²] = ${fmt(stash.gateDerivativeSecond)}·${fmt(stash.up.q)}`, SOURCE)],
       },
     ];
     const inputQ = ctx.variance(wg) * wg.fanOut * gateQ + ctx.variance(wu) * wu.fanOut * upQ;
@@ -141,12 +141,12 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       terms: N,
       zeroFraction,
       logVar: stash.input.logVar + productGradient.logVar,
-      rule: `sum of ${N} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${N} products (batch × positions) of input and gradient`,
     });
     const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
     return {
       input: linearGradient(inputQ, productGradient.logVar, D),
-      factors: [downFactor, factor(ratio, `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
+      factors: [downFactor, factor(ratio, () => `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
       inner,
       weightGradients: [
         wgm("gate", stash.input.q, gateQ, 0),

@@ -60,7 +60,7 @@ export const normRule: AnalyticRule<NormStash> = {
       factors: [
         factor(
           input.q > 0 ? q / input.q : 0,
-          `${layer.family}: gain²·var/(var + ε) = ${fmt(gainSquared)}·${fmt(normalisedSecond)}${spec.epsilon > 0 && normalisedSecond < 0.99 ? " (ε dominates a small input)" : ""}`,
+          () => `${layer.family}: gain²·var/(var + ε) = ${fmt(gainSquared)}·${fmt(normalisedSecond)}${spec.epsilon > 0 && normalisedSecond < 0.99 ? " (ε dominates a small input)" : ""}`,
           SOURCE,
         ),
       ],
@@ -90,7 +90,7 @@ export const normRule: AnalyticRule<NormStash> = {
         terms,
         zeroFraction: 0,
         logVar: output.logVar,
-        rule: `sum of ${terms} products (batch × positions) of normalised input and gradient`,
+        rule: () => `sum of ${terms} products (batch × positions) of normalised input and gradient`,
       },
     ];
     if (maybeWeight(layer, "bias") !== undefined) {
@@ -101,7 +101,7 @@ export const normRule: AnalyticRule<NormStash> = {
         terms,
         zeroFraction: 0,
         logVar: output.logVar,
-        rule: `sum of ${terms} gradients (batch × positions)`,
+        rule: () => `sum of ${terms} gradients (batch × positions)`,
       });
     }
     const input: Gradient = {
@@ -112,7 +112,7 @@ export const normRule: AnalyticRule<NormStash> = {
     };
     return {
       input,
-      factors: [factor(ratio, `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],
+      factors: [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],
       inner: [],
       weightGradients,
     };

@@ -10,7 +10,7 @@ import { sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
 import { factor, fmt } from "../common.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k independent elements (variance ÷ k; approximation)";
 const MAX_SOURCE = "maximum of k independent Gaussian elements (order statistics, computed by quadrature)";
@@ -87,7 +87,7 @@ export const poolRule: AnalyticRule<null> = {
     const output: Signal = { q, mean, zeroFraction, shape: "gaussian", logVar: input.logVar, gaussian: false };
     return {
       output,
-      factors: [factor(input.q > 0 ? q / input.q : 0, `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)],
+      factors: [factor(input.q > 0 ? q / input.q : 0, () => `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)],
       role: "activation",
       inner: [],
       hazards: [],
@@ -101,7 +101,7 @@ export const poolRule: AnalyticRule<null> = {
       const ratio = share / k;
       return {
         input: { ...output, q: output.q * ratio, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
-        factors: [factor(ratio, `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
+        factors: [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
         inner: [],
         weightGradients: [],
       };
@@ -109,7 +109,7 @@ export const poolRule: AnalyticRule<null> = {
     const reached = Math.min(share, 1);
     return {
       input: { ...output, q: output.q * share, zeroFraction: 1 - reached * (1 - output.zeroFraction) },
-      factors: [factor(share, `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
+      factors: [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
       inner: [],
       weightGradients: [],
     };

@@ -22,7 +22,7 @@ export function residualBranchSeed(layer: GraphLayer, output: Gradient): { gradi
   const alpha = (layer.spec as ResidualLayer).multiplier;
   return {
     gradient: { ...output, q: alpha * alpha * output.q },
-    factor: factor(alpha * alpha, `residual branch: multiplier² = ${fmt(alpha * alpha)}`, SOURCE),
+    factor: factor(alpha * alpha, () => `residual branch: multiplier² = ${fmt(alpha * alpha)}`, SOURCE),
   };
 }
 
@@ -45,7 +45,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const ratio = input.q > 0 ? q / input.q : 0;
     return {
       output,
-      factors: [factor(ratio, `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)],
+      factors: [factor(ratio, () => `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)],
       role: "activation",
       inner: [],
       hazards: [],
@@ -65,7 +65,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
       input,
-      factors: [factor(ratio, `residual: 1 + branch gradient/skip gradient = ${fmt(ratio)}`, SOURCE)],
+      factors: [factor(ratio, () => `residual: 1 + branch gradient/skip gradient = ${fmt(ratio)}`, SOURCE)],
       inner: [],
       weightGradients: [],
     };

@@ -1,0 +1,131 @@
+/** Activation moments and order statistics against SCIENCE.md §2.9 and §4 (quadrature values marked [X] there). */
+import { describe, expect, test } from "vitest";
+import { activationKappa, activationMoments, erf } from "../../src/ops/activation/moments.js";
+import { maxOfNormals } from "../../src/ops/pool/analytic.js";
+import { attentionRowSums } from "../../src/ops/attention/analytic.js";
+import { expectedMaxAbsProduct, expectedMaxNormal } from "../../src/magnitude/profile.js";
+
+describe("activationMoments at q = 1 (SCIENCE.md §2.9 table, checks 20–24)", () => {
+  const table = [
+    ["tanh", 0, 0.3942944904, 0.6057055096, 0.4644029024],
+    ["sigmoid", 0.5, 0.2933790359, 0.2066209641, 0.0448362414],
+    ["gelu", 0.2820947918, 0.4252214826, 0.5, 0.4558508656],
+    ["silu", 0.2066209641, 0.3557755198, 0.5, 0.3794823516],
+    ["softplus", 0.8060591833, 0.9212459089, 0.5, 0.2933790359],
+    ["relu", 0.3989422804, 0.5, 0.5, 0.5],
+  ] as const;
+  for (const [name, mean, second, dMean, dSecond] of table) {
+    test(`${name}: E[φ], E[φ²], E[φ'], E[φ'²]`, () => {
+      const m = activationMoments(name, 1);
+      expect(m.mean).toBeCloseTo(mean, 9);
+      expect(m.second).toBeCloseTo(second, 9);
+      expect(m.derivativeMean).toBeCloseTo(dMean, 9);
+      expect(m.derivativeSecond).toBeCloseTo(dSecond, 9);
+    });
+  }
+
+  test("leaky ReLU slope 0.2: E[φ] 0.3191538243, E[φ²] 0.52, E[φ'] 0.6, E[φ'²] 0.52", () => {
+    const m = activationMoments("leaky-relu", 1, 0.2);
+    expect(m.mean).toBeCloseTo(0.3191538243, 9);
+    expect(m.second).toBeCloseTo(0.52, 12);
+    expect(m.derivativeMean).toBeCloseTo(0.6, 12);
+    expect(m.derivativeSecond).toBeCloseTo(0.52, 12);
+  });
+
+  test("ReLU: E_q[φ²] = q/2 and E_q[φ'²] = 1/2 at every q (check 20)", () => {
+    for (const q of [1e-6, 0.3, 7, 1e5]) {
+      expect(activationMoments("relu", q).second).toBeCloseTo(q / 2, 12);
+      expect(activationMoments("relu", q).derivativeSecond).toBe(0.5);
+    }
+  });
+});
+
+describe("activationMoments away from q = 1 (SCIENCE.md §2.9 q-dependence)", () => {
+  const table = [
+    ["tanh", 0.1735161434, 0.7173798616, 0.6352612343, 0.2559504432],
+    ["sigmoid", 0.2639555776, 0.0560346833, 0.3485736226, 0.0290251814],
+    ["gelu", 0.0835067238, 0.3556851397, 1.9298650159, 0.5060447641],
+    ["silu", 0.0722491242, 0.3003079851, 1.7578898667, 0.4664250548],
+    ["softplus", 0.5876846301, 0.2639555776, 2.3297814636, 0.3485736226],
+  ] as const;
+  for (const [name, second25, dSecond25, second4, dSecond4] of table) {
+    test(`${name} at q = 0.25 and q = 4`, () => {
+      expect(activationMoments(name, 0.25).second).toBeCloseTo(second25, 9);
+      expect(activationMoments(name, 0.25).derivativeSecond).toBeCloseTo(dSecond25, 9);
+      expect(activationMoments(name, 4).second).toBeCloseTo(second4, 9);
+      expect(activationMoments(name, 4).derivativeSecond).toBeCloseTo(dSecond4, 9);
+    });
+  }
+
+  test("limits as q → 0: sigmoid E[φ²] → 1/4, E[φ'²] → 1/16; GELU and SiLU E[φ'²] → 1/4; tanh E[φ'²] → 1", () => {
+    expect(activationMoments("sigmoid", 1e-10).second).toBeCloseTo(0.25, 8);
+    expect(activationMoments("sigmoid", 1e-10).derivativeSecond).toBeCloseTo(1 / 16, 8);
+    expect(activationMoments("gelu", 1e-10).derivativeSecond).toBeCloseTo(0.25, 8);
+    expect(activationMoments("silu", 1e-10).derivativeSecond).toBeCloseTo(0.25, 8);
+    expect(activationMoments("tanh", 1e-10).derivativeSecond).toBeCloseTo(1, 8);
+  });
+
+  test("wide inputs: tanh² → 1 and sigmoid² → 1/2 as q grows (step limit)", () => {
+    expect(activationMoments("tanh", 1e6).second).toBeGreaterThan(0.999);
+    expect(activationMoments("sigmoid", 1e6).second).toBeCloseTo(0.5, 3);
+  });
+
+  test("E_q[φ'] = ½ at every q for GELU, SiLU and softplus (exact identity, SCIENCE.md §2.9)", () => {
+    for (const q of [0.01, 0.25, 1, 4, 25]) expect(activationMoments("silu", q).derivativeMean).toBeCloseTo(0.5, 9);
+    for (const q of [0.01, 0.25, 1, 4, 25]) expect(activationMoments("softplus", q).derivativeMean).toBeCloseTo(0.5, 9);
+    for (const q of [0.01, 0.25, 1, 4, 25]) expect(activationMoments("gelu", q).derivativeMean).toBeCloseTo(0.5, 12);
+  });
+});
+
+describe("finite-width κ (SCIENCE.md §2.6 heuristic)", () => {
+  test("ReLU 5/5, linear 2/2, leaky 0.2 gives 6(1+a⁴)/(1+a²)² − 1 = 4.556 forward", () => {
+    expect(activationKappa(activationMoments("relu", 1))).toEqual({ forward: 5, backward: 5 });
+    const linear = activationKappa(activationMoments("identity", 1));
+    expect(linear.forward).toBeCloseTo(2, 12);
+    expect(linear.backward).toBeCloseTo(2, 12);
+    expect(activationKappa(activationMoments("leaky-relu", 1, 0.2)).forward).toBeCloseTo((6 * (1 + 0.2 ** 4)) / (1 + 0.04) ** 2 - 1, 12);
+  });
+
+  test("GELU 6.22/5.27, SiLU 6.26/4.97, tanh 0.63/3.75, sigmoid 0.53/2.41 at q = 1 (two decimals as given)", () => {
+    const check = (name: "gelu" | "silu" | "tanh" | "sigmoid", f: number, b: number): void => {
+      const k = activationKappa(activationMoments(name, 1));
+      expect(k.forward).toBeCloseTo(f, 1);
+      expect(k.backward).toBeCloseTo(b, 1);
+    };
+    check("gelu", 6.22, 5.27);
+    check("silu", 6.26, 4.97);
+    check("tanh", 0.63, 3.75);
+    check("sigmoid", 0.53, 2.41);
+  });
+});
+
+describe("order statistics and tails (SCIENCE.md §4)", () => {
+  test("E[max of n N(0,1)]: 1.53875 at n = 10 (quadrature) and the refined expansion at 1e3, 1e6, 1e9", () => {
+    expect(maxOfNormals(10).m1).toBeCloseTo(1.53875, 4);
+    expect(expectedMaxNormal(10)).toBeCloseTo(1.53875, 4);
+    // the refined expansion is within 1% of the exact values 3.24144, 4.86290, 6.08768
+    expect(expectedMaxNormal(1e3) / 3.24144).toBeCloseTo(1, 1);
+    expect(Math.abs(expectedMaxNormal(1e3) / 3.27176 - 1)).toBeLessThan(1e-5);
+    expect(Math.abs(expectedMaxNormal(1e6) / 4.87582 - 1)).toBeLessThan(1e-5);
+    expect(Math.abs(expectedMaxNormal(1e9) / 6.09556 - 1)).toBeLessThan(1e-5);
+  });
+
+  test("the maximum of a product of two Gaussians sits far above a Gaussian's at the same rms (K0 tail)", () => {
+    expect(expectedMaxAbsProduct(1e8)).toBeGreaterThan(15);
+    expect(expectedMaxAbsProduct(1e8)).toBeLessThan(20);
+  });
+
+  test("erf: erf(0.5) = 0.5204998778, 1 − erf(4) = 1.541725790e-8 (A&S Table 7.1)", () => {
+    expect(erf(0.5)).toBeCloseTo(0.5204998778130465, 14);
+    expect((1 - erf(4)) / 1.541725790028002e-8).toBeCloseTo(1, 6);
+  });
+
+  test("attention rows: uniform attention gives Σp² = 1/P; causal gives H_P/P", () => {
+    expect(attentionRowSums(100, false, 0).sumSquares).toBeCloseTo(0.01, 15);
+    let h = 0;
+    for (let i = 1; i <= 1000; i++) h += 1 / i;
+    expect(attentionRowSums(1000, true, 0).sumSquares).toBeCloseTo(h / 1000, 12);
+    // one-hot attention when e^Var[s] exceeds the row length
+    expect(attentionRowSums(16, false, 10).sumSquares).toBe(1);
+  });
+});
