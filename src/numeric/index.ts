@@ -1,2 +1,6 @@
-/** Public exports of src/numeric. */
-export {};
+/** Public exports of src/numeric: dependency-free math for the magnitude engine and the simulator. */
+export * from "./normal.js";
+export * from "./quadrature.js";
+export * from "./activations.js";
+export * from "./random.js";
+export * from "./roots.js";
