@@ -63,7 +63,10 @@ function findPair(doc: Document, map: { items: { key: unknown; value: unknown }[
   for (const pair of map.items) if (String(keyOf(pair.key)) === String(segment)) return pair as { key: unknown; value: unknown };
   // merge keys (`<<: *base`) bring keys from elsewhere; find them there
   for (const pair of map.items) {
-    if (keyOf(pair.key) !== "<<") continue;
+    const key = keyOf(pair.key);
+    // with merge keys on, the yaml library gives `<<` a symbol value (its source text stays "<<")
+    const isMerge = key === "<<" || (typeof key === "symbol" && (pair.key as { source?: unknown }).source === "<<");
+    if (!isMerge) continue;
     const sources = isSeq(pair.value) ? pair.value.items : [pair.value];
     for (const source of sources) {
       const target = resolveAlias(doc, source);

@@ -79,6 +79,8 @@ export function parseSpec(text: string, source: string): SpecResult {
       issues: [{ file: source, line: at.line, column: at.column, path: "", message: `a spec is a mapping of keys (input, training, layers, …), got ${got}` }],
     };
   }
+  // top-level keys starting with "x-" are the user's own (a place to keep YAML anchors); they are ignored
+  data = Object.fromEntries(Object.entries(data as Record<string, unknown>).filter(([key]) => !key.startsWith("x-")));
   const toIssue = (raw: RawIssue): SpecIssue => {
     const at = locateIn(doc as Document, counter, raw.path, raw.atKey);
     return { file: source, line: at.line, column: at.column, path: formatSpecPath(raw.path), message: raw.message };

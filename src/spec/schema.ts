@@ -567,9 +567,12 @@ let cachedJsonSchema: Record<string, unknown> | undefined;
  * Fields with defaults are optional in it (the input side of the schema).
  */
 export function specJsonSchema(): Record<string, unknown> {
+  const generated = z.toJSONSchema(specSchema, { target: "draft-07", io: "input" }) as Record<string, unknown>;
   cachedJsonSchema ??= {
-    ...(z.toJSONSchema(specSchema, { target: "draft-07", io: "input" }) as Record<string, unknown>),
+    ...generated,
     title: "headroom network spec",
+    // the loader ignores top-level keys starting with "x-": a place for YAML anchors
+    patternProperties: { "^x-": { description: "Your own key, ignored by headroom (a place to keep YAML anchors)" } },
   };
   return structuredClone(cachedJsonSchema);
 }
