@@ -1,2 +1,9 @@
-/** Public exports of src/risk. */
-export {};
+/** Public exports of src/risk: magnitude profiles judged against formats, operation hazards, verdicts. */
+export * from "./types.js";
+export * from "./catalogue.js";
+export { elementLaw, overDraws, type ElementLaw } from "./laws.js";
+export * from "./profile.js";
+export * from "./tensor.js";
+export * from "./hazards.js";
+export * from "./verdict.js";
+export { plainNumber, percent, binades } from "./words.js";

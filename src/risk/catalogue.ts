@@ -1,0 +1,158 @@
+/**
+ * The catalogue of finding kinds and the default thresholds. Every renderer (terminal, JSON, Markdown, HTML)
+ * reads titles and descriptions from here.
+ */
+import type { FindingKind, RiskThresholds } from "./types.js";
+
+/** How a finding kind is named and explained to a user. */
+export interface FindingInfo {
+  /** a short title, e.g. "Overflow" */
+  title: string;
+  /** a phrase that completes "N tensors …", e.g. "overflow" */
+  short: string;
+  /** what it means, what the default thresholds are, and what usually helps */
+  description: string;
+}
+
+/**
+ * The default thresholds. Probabilities are per training step; a per-step overflow risk of 1e-2 means an
+ * overflow about every hundred steps, 1e-6 about once in a million steps.
+ */
+export const DEFAULT_THRESHOLDS: Readonly<RiskThresholds> = Object.freeze({
+  overflowAtRisk: 1e-6,
+  overflowFails: 1e-2,
+  energyAtRisk: 1e-4,
+  energyFails: 1e-2,
+  flushedAtRisk: 1e-2,
+  flushedFails: 1e-1,
+  subnormalAtRisk: 0.25,
+  headroomAtRisk: 1,
+  accumulationAtRisk: 1e-2,
+  accumulationFails: 1e-1,
+  maxQuantile: 1e-3,
+  lowQuantile: 1e-2,
+});
+
+/** Every finding kind, described. */
+export const FINDING_INFO = {
+  overflow: {
+    title: "Overflow",
+    short: "overflow",
+    description:
+      "At least one element of the tensor reaches the format's overflow threshold in a step and becomes " +
+      "infinity (or NaN), which spreads through the next operations. At risk above a per-step probability " +
+      "of 1e-6, fails above 1e-2. Usual remedies: a smaller loss scale (gradients), a format with more " +
+      "range (bfloat16), smaller norm gains or embedding multipliers (activations).",
+  },
+  saturation: {
+    title: "Saturation",
+    short: "saturate",
+    description:
+      "At least one element exceeds the largest finite value of a saturating 8-bit conversion and is " +
+      "clipped to it. Clipping does not produce infinities, but it distorts the largest values. At risk " +
+      "above a per-step probability of 1e-6, fails above 1e-2. Usual remedy: per-tensor scaling, or a margin " +
+      "in the scale factor.",
+  },
+  "little-headroom": {
+    title: "Little headroom",
+    short: "have less than a binade of headroom",
+    description:
+      "The predicted max (the level exceeded in one step in a thousand) is within a factor of two of the " +
+      "largest finite value, although the predicted overflow risk is small. Growth during training that " +
+      "the prediction misses would overflow. At risk below 1 binade.",
+  },
+  "gradient-energy-flushed": {
+    title: "Gradient energy flushed",
+    short: "lose gradient energy to zero",
+    description:
+      "The gradient elements that round to zero carry this share of the gradient's squared norm, so the " +
+      "update loses that part of its signal. At risk above 1e-4, fails above 1e-2 (1%). Usual remedy: a " +
+      "larger loss scale, or bfloat16 for gradients.",
+  },
+  "flushed-values": {
+    title: "Values flushed to zero",
+    short: "flush values to zero",
+    description:
+      "This share of the tensor's nonzero elements rounds to zero in the format. At risk above 1%, fails " +
+      "above 10%. Usual remedy: a loss scale (gradients), a wider format for the tensor, or a binary32 " +
+      "master copy (weights and updates).",
+  },
+  "subnormal-values": {
+    title: "Subnormal values",
+    short: "hold many subnormals",
+    description:
+      "This share of the tensor's nonzero elements lands in the subnormal range, where values keep fewer " +
+      "significant bits (a binary16 subnormal near 2^k keeps 25 + k bits). At risk above 25%.",
+  },
+  "softmax-exp-overflow": {
+    title: "Softmax exp overflow",
+    short: "overflow exp in a softmax",
+    description:
+      "A softmax that does not subtract the row maximum computes exp of the raw logits; exp(x) overflows " +
+      "binary16 from x = ln 65520 = 11.09 (bfloat16 and binary32 from 88.72, e4m3 past ln 448 = 6.10). " +
+      "Judged by the probability that any logit of a step passes that level. Remedy: subtract the row maximum.",
+  },
+  "softmax-sum-overflow": {
+    title: "Softmax sum overflow",
+    short: "overflow a softmax denominator",
+    description:
+      "With the row maximum subtracted each exp is at most 1, but the denominator sums one term per key; it " +
+      "overflows when a row has more keys than the format's largest finite value.",
+  },
+  "norm-sum-overflow": {
+    title: "Norm statistics overflow",
+    short: "overflow a sum of squares in a norm",
+    description:
+      "A layer-norm, rms-norm or batch-norm sums the squares of N features; the sum overflows once the rms " +
+      "of the input exceeds √(max/N) (4.0 for N = 4096 in binary16). Fails when the sum is held in the " +
+      "plan's accumulate format; at risk when only the activation format would overflow (an implementation " +
+      "that does not widen the statistics). Remedy: compute norm statistics in binary32.",
+  },
+  "accumulation-error": {
+    title: "Accumulation error",
+    short: "accumulate long sums in a narrow format",
+    description:
+      "A dot product or reduction of n terms accumulated in a format with unit roundoff u has a relative " +
+      "rounding error of about √n·u for terms of random sign (n·u in the worst case). At risk above 1e-2, " +
+      "fails above 1e-1. Remedy: accumulate in binary32.",
+  },
+  "accumulation-overflow": {
+    title: "Accumulation overflow",
+    short: "overflow a partial sum",
+    description:
+      "The partial sums of a dot product or reduction reach the accumulate format's overflow threshold. " +
+      "Judged by the per-step probability, as for tensors.",
+  },
+  "loss-value-overflow": {
+    title: "Loss value overflow",
+    short: "overflow the loss value",
+    description:
+      "The loss value, multiplied by the loss scale and summed over the batch under sum reduction, reaches " +
+      "the overflow threshold of the format it is held in. Remedy: mean reduction, a smaller loss scale, or " +
+      "computing the loss in binary32.",
+  },
+  "gradient-sum-overflow": {
+    title: "Gradient sum overflow",
+    short: "overflow the gradient sum across workers",
+    description:
+      "Gradients summed across data-parallel workers and accumulation steps grow with the number of terms " +
+      "(coherent parts add up linearly) and can overflow the gradient format. Remedy: divide before summing, " +
+      "or sum in binary32.",
+  },
+  "gradient-sum-flush": {
+    title: "Gradient division flushes",
+    short: "flush gradients divided by the worker count",
+    description:
+      "Dividing each worker's gradient by the worker count before the sum moves small gradients below the " +
+      "flush bound. Judged by the flushed gradient energy, as for gradient tensors.",
+  },
+  "optimizer-epsilon-flushed": {
+    title: "Optimizer epsilon flushed",
+    short: "round the optimizer epsilon to zero",
+    description:
+      "Adam's epsilon rounds to zero in the optimizer-state format (1e-8 is below binary16's flush bound " +
+      "2^-25); where a second moment is zero (a zero or flushed gradient) the update divides by zero. At risk " +
+      "always; fails when at least one zero second moment is expected per step. Remedy: keep optimizer " +
+      "states in binary32, or raise epsilon.",
+  },
+} as const satisfies Record<FindingKind, FindingInfo>;

@@ -1,0 +1,188 @@
+/**
+ * The law of one element's magnitude, for each element shape of a magnitude profile, and the mixture over
+ * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { erf, erfc, normalCdf, normalPdf, normalSf, LN2 } from "./_math.js";
+
+const SQRT2 = Math.SQRT2;
+const SQRT3 = Math.sqrt(3);
+
+/** The magnitude law of one nonzero element when the tensor's scale (its rms) is r. */
+export interface ElementLaw {
+  /** P(|x| ≤ t) */
+  below(r: number, t: number): number;
+  /** P(|x| ≥ t), accurate relative to its own size far into the upper tail */
+  above(r: number, t: number): number;
+  /** E[x²; |x| ≤ t] / E[x²]: the share of the squared norm carried by elements at or below t */
+  energyBelow(r: number, t: number): number;
+  /** E[x⁴]/E[x²]²: the kurtosis of the element, which sets how much a sum of squares fluctuates */
+  kurtosis: number;
+  /** P(x ≥ t) / P(|x| ≥ t): 1/2 for a symmetric sign, 1 when the sign is fixed or unknown (worst case) */
+  positiveShare: number;
+}
+
+// Gaussian magnitudes: x = r·Z. P(|x| ≤ t) = erf(t/(r√2)) (SCIENCE.md §4).
+function gaussianBelow(r: number, t: number): number {
+  if (!(t > 0)) return 0;
+  if (!(r > 0)) return 1;
+  return erf(t / (r * SQRT2));
+}
+function gaussianAbove(r: number, t: number): number {
+  if (!(t > 0)) return 1;
+  if (!(r > 0)) return 0;
+  return erfc(t / (r * SQRT2));
+}
+// E[Z²; |Z| ≤ a] = erf(a/√2) − 2aφ(a) (integration by parts of z·zφ(z)); below a = 1 the difference cancels,
+// so use the termwise integral of the Taylor series of z²e^{−z²/2}: 2φ(0)·Σ (−1/2)^k/k!·a^{2k+3}/(2k+3).
+function gaussianEnergyBelow(r: number, t: number): number {
+  if (!(t > 0)) return 0;
+  if (!(r > 0)) return 1;
+  const a = t / r;
+  if (a < 1) {
+    const a2 = a * a;
+    let power = a * a2;
+    let coefficient = 1;
+    let sum = 0;
+    for (let k = 0; k < 30; k++) {
+      const term = (coefficient * power) / (2 * k + 3);
+      sum += term;
+      if (Math.abs(term) < 1e-17 * Math.abs(sum)) break;
+      coefficient *= -0.5 / (k + 1);
+      power *= a2;
+    }
+    return 2 * normalPdf(0) * sum;
+  }
+  // the complement erfc(a/√2) + 2aφ(a) has no cancellation for large a
+  return 1 - (erfc(a / SQRT2) + 2 * a * normalPdf(a));
+}
+
+const gaussian: ElementLaw = {
+  below: gaussianBelow,
+  above: gaussianAbove,
+  energyBelow: gaussianEnergyBelow,
+  kurtosis: 3,
+  positiveShare: 0.5,
+};
+
+// A ReLU output's nonzero part: the magnitudes of a Gaussian, all of one sign.
+const halfGaussian: ElementLaw = { ...gaussian, positiveShare: 1 };
+
+// x ~ U[−A, A] with A = r·√3 (variance A²/3): P(|x| ≤ t) = t/A, E[x²; |x| ≤ t]/E[x²] = (t/A)³, kurtosis 9/5.
+const uniform: ElementLaw = {
+  below: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3))),
+  above: (r, t) => (!(t > 0) ? 1 : !(r > 0) ? 0 : Math.max(0, 1 - t / (r * SQRT3))),
+  energyBelow: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3)) ** 3),
+  kurtosis: 9 / 5,
+  positiveShare: 0.5,
+};
+
+// Every nonzero element has magnitude r; its sign is not known, so a one-sided test takes the worst case.
+const constant: ElementLaw = {
+  below: (r, t) => (r <= t ? 1 : 0),
+  above: (r, t) => (r >= t ? 1 : 0),
+  energyBelow: (r, t) => (r <= t ? 1 : 0),
+  kurtosis: 1,
+  positiveShare: 1,
+};
+
+// Magnitudes of a Gaussian, never above the bound (sigmoid outputs, probabilities); modelling choice: the
+// Gaussian tail up to the bound, nothing beyond it.
+function boundedLaw(bound: number): ElementLaw {
+  return {
+    below: (r, t) => (t >= bound ? 1 : gaussianBelow(r, t)),
+    above: (r, t) => (t > bound ? 0 : gaussianAbove(r, t)),
+    energyBelow: (r, t) => (t >= bound ? 1 : gaussianEnergyBelow(r, t)),
+    kurtosis: 3,
+    positiveShare: 1,
+  };
+}
+
+// log2|x| ~ N(m, s²) with m = log2 r − s²·ln 2, so that E[x²] = r² (E[2^{2sZ}] = e^{2(s ln 2)²}).
+// P(|x| ≤ t) = Φ((log2 t − m)/s) (SCIENCE.md §4, in log2 units); the partial second moment of a log-normal:
+// E[x²; |x| ≤ t]/E[x²] = Φ((log2 t − m)/s − 2s·ln 2); kurtosis e^{4(s ln 2)²}.
+function logNormalLaw(s: number): ElementLaw {
+  const mean = (r: number): number => Math.log2(r) - s * s * LN2;
+  return {
+    below: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - mean(r)) / s)),
+    above: (r, t) => (!(t > 0) ? 1 : !(r > 0) ? 0 : normalSf((Math.log2(t) - mean(r)) / s)),
+    energyBelow: (r, t) =>
+      !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - mean(r)) / s - 2 * s * LN2),
+    kurtosis: Math.exp(4 * (s * LN2) ** 2),
+    positiveShare: 0.5,
+  };
+}
+
+/** The element law of a profile's nonzero part. */
+export function elementLaw(profile: MagnitudeProfile): ElementLaw {
+  switch (profile.shape) {
+    case "gaussian":
+      return gaussian;
+    case "half-gaussian":
+      return halfGaussian;
+    case "uniform":
+      return uniform;
+    case "constant":
+      return constant;
+    case "bounded":
+      return profile.bound !== undefined && profile.bound > 0 ? boundedLaw(profile.bound) : gaussian;
+    case "log-normal": {
+      const s = profile.elementLog2Spread ?? 0;
+      return s > 0 ? logNormalLaw(s) : constant;
+    }
+  }
+}
+
+// Draws of the scale: log2(r) = log2(rms) + spread·z, z ~ N(0, 1). The integrand over z is often a smoothed
+// step (a tail probability that switches on past some draw), which a Gauss–Hermite rule with its few outer
+// nodes resolves poorly; composite Simpson on a fine uniform grid over ±9 standard deviations resolves it,
+// and the mass beyond 9 (about 2e-19) is below any probability we report.
+const DRAW_LIMIT = 9;
+const DRAW_STEP = 1 / 16;
+const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
+  const count = Math.round((2 * DRAW_LIMIT) / DRAW_STEP) + 1;
+  const z = new Float64Array(count);
+  const w = new Float64Array(count);
+  let total = 0;
+  for (let i = 0; i < count; i++) {
+    z[i] = -DRAW_LIMIT + i * DRAW_STEP;
+    const simpson = i === 0 || i === count - 1 ? 1 : i % 2 === 1 ? 4 : 2;
+    w[i] = simpson * normalPdf(z[i] as number);
+    total += w[i] as number;
+  }
+  for (let i = 0; i < count; i++) w[i] = (w[i] as number) / total;
+  return { z, w };
+})();
+
+/**
+ * E over draws of f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width spread, Hanin & Nica 2019):
+ * f(rms) itself when the scale does not spread.
+ */
+export function overDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
+  if (!(log2Spread > 0)) return f(rms);
+  const { z, w } = DRAW_NODES;
+  let sum = 0;
+  for (let i = 0; i < z.length; i++) {
+    const weight = w[i] as number;
+    sum += weight * f(rms * 2 ** (log2Spread * (z[i] as number)));
+  }
+  return sum;
+}
+
+/**
+ * The t (found in log2 t by bisection) where a function of t that decreases from 1 to 0, or increases from
+ * 0 to 1, crosses p. `increasing` tells which. Searches within ±1100 binades of `around`.
+ */
+export function solveLevel(g: (t: number) => number, p: number, around: number, increasing: boolean): number {
+  const centre = Math.log2(around);
+  let lo = centre - 1100;
+  let hi = centre + 1100;
+  for (let i = 0; i < 60 && hi - lo > 1e-9; i++) {
+    const mid = 0.5 * (lo + hi);
+    const value = g(2 ** mid);
+    const beyond = increasing ? value >= p : value <= p;
+    if (beyond) hi = mid;
+    else lo = mid;
+  }
+  return 2 ** (0.5 * (lo + hi));
+}

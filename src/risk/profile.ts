@@ -1,0 +1,194 @@
+/**
+ * Risk numbers of one magnitude profile: the format-independent statistics (the predicted largest and
+ * smallest magnitudes) and the numbers that judge it against one format's range.
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
+import { elementLaw, overDraws, solveLevel } from "./laws.js";
+import type { RangeLimits } from "./types.js";
+
+/** Probability levels at which the predicted largest and smallest magnitudes are read. */
+export interface QuantileLevels {
+  /** the predicted max is the level the tensor's largest element exceeds with this probability per step */
+  maxQuantile: number;
+  /** the predicted low magnitude is this quantile of the nonzero magnitudes */
+  lowQuantile: number;
+}
+
+/** The default levels: a max exceeded in one step in a thousand, and the 1% quantile of nonzero magnitudes. */
+export const DEFAULT_QUANTILE_LEVELS: QuantileLevels = { maxQuantile: 1e-3, lowQuantile: 1e-2 };
+
+/** Format-independent statistics of a profile. Magnitudes are 0 for an all-zero tensor. */
+export interface ProfileStatistics {
+  /** rms of the nonzero elements at the median draw */
+  rms: number;
+  /** the level the largest element exceeds with probability `maxQuantile` per step */
+  max: number;
+  /** the `lowQuantile` quantile of the nonzero magnitudes, over draws */
+  low: number;
+}
+
+/** A profile's risk in one format. Binades are null when the tensor is all zeros. */
+export interface ProfileRisk {
+  /** share of the nonzero elements that round to zero: P(0 < |x| ≤ flush bound) */
+  flushedFraction: number;
+  /** share of the nonzero elements that round to a subnormal (0 when subnormals are flushed) */
+  subnormalFraction: number;
+  /** share of the squared norm carried by the flushed elements (the gradient energy lost) */
+  flushedEnergy: number;
+  /** probability that at least one element overflows (or, saturating, exceeds the largest finite value) in one step */
+  overflowRisk: number;
+  /** log2(largest finite / predicted max) */
+  headroom: number | null;
+  /** log2(predicted low magnitude / smallest representable magnitude) */
+  footroom: number | null;
+}
+
+/** Number of nonzero elements of one step. */
+export function nonzeroElements(profile: MagnitudeProfile): number {
+  return Math.max(0, profile.elements * (1 - profile.zeroFraction));
+}
+
+function isEmpty(profile: MagnitudeProfile): boolean {
+  return !(profile.rms > 0) || !(nonzeroElements(profile) > 0);
+}
+
+/**
+ * Probability that at least one nonzero element reaches t in one step, over draws of the scale:
+ * E_r[1 − (1 − P(|x| ≥ t | r))^n] (independent elements; the draw integral as in {@link overDraws}).
+ * `positiveOnly` counts only elements reaching +t (exp of a logit overflows on the positive side only).
+ */
+export function probabilityAnyAbove(profile: MagnitudeProfile, t: number, positiveOnly = false): number {
+  if (isEmpty(profile)) return 0;
+  const law = elementLaw(profile);
+  const n = nonzeroElements(profile);
+  const share = positiveOnly ? law.positiveShare : 1;
+  // constant magnitudes: every element equals the drawn scale, so the event is log2 r ≥ log2 t (closed form)
+  if (isConstantLike(profile)) return drawReaches(profile, t);
+  return overDraws(profile.rms, profile.log2Spread, (r) => anyOf(share * law.above(r, t), n));
+}
+
+// Every nonzero element equals the drawn scale: constant shape, or a log-normal without element spread.
+function isConstantLike(profile: MagnitudeProfile): boolean {
+  return profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0));
+}
+
+// P(log2 r ≥ log2 t) for a constant-like profile: the draw's z must pass (log2 t − log2 rms)/spread
+function drawReaches(profile: MagnitudeProfile, t: number): number {
+  if (!(profile.log2Spread > 0)) return profile.rms >= t ? 1 : 0;
+  return normalSf((Math.log2(t) - Math.log2(profile.rms)) / profile.log2Spread);
+}
+
+/** Expected share of nonzero elements at or below t, over draws. */
+export function fractionBelow(profile: MagnitudeProfile, t: number): number {
+  if (isEmpty(profile)) return 0;
+  const law = elementLaw(profile);
+  if (isConstantLike(profile)) {
+    if (!(profile.log2Spread > 0)) return profile.rms <= t ? 1 : 0;
+    return normalSf((Math.log2(profile.rms) - Math.log2(t)) / profile.log2Spread);
+  }
+  return overDraws(profile.rms, profile.log2Spread, (r) => law.below(r, t));
+}
+
+/**
+ * Expected share of the squared norm carried by elements at or below t, over draws (each draw's share
+ * weighted equally: the share, not the absolute energy, is what a user compares with a tolerance).
+ */
+export function energyBelow(profile: MagnitudeProfile, t: number): number {
+  if (isEmpty(profile)) return 0;
+  const law = elementLaw(profile);
+  if (isConstantLike(profile)) return fractionBelow(profile, t);
+  return overDraws(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+}
+
+/** The format-independent statistics of a profile at the given quantile levels. */
+export function profileStatistics(
+  profile: MagnitudeProfile,
+  levels: QuantileLevels = DEFAULT_QUANTILE_LEVELS,
+): ProfileStatistics {
+  if (isEmpty(profile)) return { rms: 0, max: 0, low: 0 };
+  if (isConstantLike(profile)) {
+    // every element equals the drawn scale: read both levels off the draw distribution directly
+    const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+    return {
+      rms: profile.rms,
+      max: profile.rms * 2 ** (spread * normalUpperQuantile(levels.maxQuantile)),
+      low: profile.rms * 2 ** (-spread * normalUpperQuantile(levels.lowQuantile)),
+    };
+  }
+  const max = solveLevel((t) => probabilityAnyAbove(profile, t), levels.maxQuantile, profile.rms, false);
+  const low = solveLevel((t) => fractionBelow(profile, t), levels.lowQuantile, profile.rms, true);
+  return { rms: profile.rms, max, low };
+}
+
+/**
+ * The range of a format as the risk numbers see it, given the plan's conversion options.
+ * Overflow level: the RNE overflow threshold (IEEE 754-2019 rounding of values past the largest finite
+ * value; SCIENCE.md §1.1), or for a saturating conversion the largest finite value itself, past which values
+ * are clipped (OCP 8-bit specification; counted from max finite, conservative by half an ulp).
+ * Lower bounds: half the smallest subnormal rounds to zero (SCIENCE.md §1.1); when subnormals are flushed
+ * (SCIENCE.md §1.2, bfloat16 on much hardware) everything below the smallest normal becomes zero.
+ */
+export function rangeLimits(
+  format: {
+    name: RangeLimits["format"];
+    maxFinite: number;
+    overflowThreshold: number;
+    minNormal: number;
+    minSubnormal: number;
+    flushBound: number;
+    unitRoundoff: number;
+  },
+  options: { saturate: boolean; flushSubnormals: boolean },
+): RangeLimits {
+  return {
+    format: format.name,
+    maxFinite: format.maxFinite,
+    overflowLevel: options.saturate ? format.maxFinite : format.overflowThreshold,
+    saturates: options.saturate,
+    flushBound: options.flushSubnormals ? format.minNormal : format.flushBound,
+    minNormal: format.minNormal,
+    smallest: options.flushSubnormals ? format.minNormal : format.minSubnormal,
+    unitRoundoff: format.unitRoundoff,
+  };
+}
+
+/**
+ * Judge one profile against one format's range. `statistics` comes from {@link profileStatistics} and is
+ * shared by every format.
+ * @example profileRisk(gaussianProfile(1e-3), binary16Limits, stats).flushedFraction // => 2.378e-5 (SCIENCE.md §4)
+ */
+export function profileRisk(
+  profile: MagnitudeProfile,
+  limits: RangeLimits,
+  statistics: ProfileStatistics = profileStatistics(profile),
+): ProfileRisk {
+  if (isEmpty(profile)) {
+    return {
+      flushedFraction: 0,
+      subnormalFraction: 0,
+      flushedEnergy: 0,
+      overflowRisk: 0,
+      headroom: null,
+      footroom: null,
+    };
+  }
+  const flushedFraction = fractionBelow(profile, limits.flushBound);
+  const belowNormal = limits.flushBound >= limits.minNormal ? flushedFraction : fractionBelow(profile, limits.minNormal);
+  return {
+    flushedFraction,
+    subnormalFraction: Math.max(0, belowNormal - flushedFraction),
+    flushedEnergy: energyBelow(profile, limits.flushBound),
+    overflowRisk: probabilityAnyAbove(profile, limits.overflowLevel),
+    headroom: Math.log2(limits.maxFinite / statistics.max),
+    footroom: Math.log2(statistics.low / limits.smallest),
+  };
+}
+
+/** A copy of the profile with its scale multiplied by a factor (a loss scale, a per-tensor scale). */
+export function scaleProfile(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
+  if (factor === 1) return profile;
+  const scaled: MagnitudeProfile = { ...profile, rms: profile.rms * factor };
+  if (profile.bound !== undefined) scaled.bound = profile.bound * factor;
+  return scaled;
+}

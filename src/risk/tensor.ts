@@ -1,0 +1,247 @@
+/**
+ * Risk of one predicted tensor in one format: the profile numbers at the start and at the end of the horizon,
+ * the worse of the two, and the findings they raise against the thresholds.
+ */
+import type { FormatName } from "../formats/names.js";
+import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
+import {
+  profileRisk,
+  profileStatistics,
+  scaleProfile,
+  type ProfileRisk,
+  type ProfileStatistics,
+} from "./profile.js";
+import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { binades, percent, plainNumber, when } from "./words.js";
+
+/** Roles whose flushed elements are judged by the share of squared norm they carry. */
+export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
+
+/** Roles the loss scale multiplies: the backward pass runs on the scaled loss (Micikevicius et al. 2018 §3.2). */
+export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient", "loss"];
+
+/** The worse of the start and end numbers, and when each is worse. */
+export interface WorstRisk extends ProfileRisk {
+  overflowAt: "start" | "end";
+  flushAt: "start" | "end";
+}
+
+/** One tensor judged in one format. */
+export interface TensorFormatRisk {
+  format: FormatName;
+  /** whether this format's verdict counts the tensor (the tensor is stored in it under the evaluated plan) */
+  judged: boolean;
+  /** log2 of the per-tensor scale factor applied before conversion (8-bit formats with scaling), else 0 */
+  scaleLog2: { start: number; end: number };
+  start: ProfileRisk;
+  end: ProfileRisk;
+  worst: WorstRisk;
+  /** fits when `judged` is false */
+  verdict: Verdict;
+  findings: Finding[];
+}
+
+/** A tensor's format-independent statistics, with the loss scale applied where the role takes it. */
+export interface TensorStatistics {
+  /** the factor applied to the predicted profiles (the loss scale for gradient roles and the loss, else 1) */
+  factor: number;
+  start: ProfileStatistics;
+  end: ProfileStatistics;
+}
+
+/** The factor the loss scale contributes to a tensor of this role. */
+export function lossScaleFactor(role: TensorRole, lossScale: number): number {
+  return LOSS_SCALED_ROLES.includes(role) ? lossScale : 1;
+}
+
+/** Statistics of a tensor's start and end profiles after its loss-scale factor. */
+export function tensorStatistics(
+  tensor: TensorPrediction,
+  lossScale: number,
+  thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
+): TensorStatistics {
+  const factor = lossScaleFactor(tensor.role, lossScale);
+  return {
+    factor,
+    start: profileStatistics(scaleProfile(tensor.start, factor), thresholds),
+    end: profileStatistics(scaleProfile(tensor.end, factor), thresholds),
+  };
+}
+
+/**
+ * The per-tensor scale factor an 8-bit conversion with per-tensor scaling applies:
+ * 2^⌊log2(max finite / amax)⌋ (SCIENCE.md §3.4, the common per-tensor rule; from memory, unconfirmed as to the
+ * paper's wording). amax is the tensor's predicted max (the level exceeded once in `1/maxQuantile` steps), as a
+ * scale set from a history of recent maxima would see it.
+ */
+export function perTensorScaleLog2(predictedMax: number, maxFinite: number): number {
+  if (!(predictedMax > 0)) return 0;
+  return Math.floor(Math.log2(maxFinite / predictedMax));
+}
+
+/** Options of {@link tensorFormatRisk}. */
+export interface TensorRiskOptions {
+  /** whether this format's verdict counts the tensor */
+  judged: boolean;
+  /** whether the conversion to this format applies a per-tensor scale factor (8-bit formats with scaling) */
+  perTensorScaling: boolean;
+  thresholds: RiskThresholds;
+}
+
+/** Judge a tensor (statistics from {@link tensorStatistics}) against one format's range. */
+export function tensorFormatRisk(
+  tensor: TensorPrediction,
+  limits: RangeLimits,
+  statistics: TensorStatistics,
+  options: TensorRiskOptions,
+): TensorFormatRisk {
+  const evaluate = (profile: MagnitudeProfile, stats: ProfileStatistics): { risk: ProfileRisk; scaleLog2: number } => {
+    const scaled = scaleProfile(profile, statistics.factor);
+    if (!options.perTensorScaling) return { risk: profileRisk(scaled, limits, stats), scaleLog2: 0 };
+    const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
+    const factor = 2 ** scaleLog2;
+    // scaling is linear, so the statistics scale with it
+    const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
+    return { risk: profileRisk(scaleProfile(scaled, factor), limits, rescaled), scaleLog2 };
+  };
+  const start = evaluate(tensor.start, statistics.start);
+  const end = evaluate(tensor.end, statistics.end);
+  const worst = worseOf(start.risk, end.risk);
+  const findings = options.judged ? tensorFindings(tensor, limits, worst, options) : [];
+  return {
+    format: limits.format,
+    judged: options.judged,
+    scaleLog2: { start: start.scaleLog2, end: end.scaleLog2 },
+    start: start.risk,
+    end: end.risk,
+    worst,
+    verdict: worstVerdict(findings),
+    findings,
+  };
+}
+
+function minOrNull(a: number | null, b: number | null): number | null {
+  if (a === null) return b;
+  if (b === null) return a;
+  return Math.min(a, b);
+}
+
+/** Per quantity, the worse of the start and end numbers. */
+export function worseOf(start: ProfileRisk, end: ProfileRisk): WorstRisk {
+  return {
+    flushedFraction: Math.max(start.flushedFraction, end.flushedFraction),
+    subnormalFraction: Math.max(start.subnormalFraction, end.subnormalFraction),
+    flushedEnergy: Math.max(start.flushedEnergy, end.flushedEnergy),
+    overflowRisk: Math.max(start.overflowRisk, end.overflowRisk),
+    headroom: minOrNull(start.headroom, end.headroom),
+    footroom: minOrNull(start.footroom, end.footroom),
+    overflowAt:
+      end.overflowRisk > start.overflowRisk ||
+      (end.overflowRisk === start.overflowRisk && (end.headroom ?? Infinity) < (start.headroom ?? Infinity))
+        ? "end"
+        : "start",
+    flushAt:
+      end.flushedEnergy > start.flushedEnergy ||
+      (end.flushedEnergy === start.flushedEnergy && end.flushedFraction > start.flushedFraction)
+        ? "end"
+        : "start",
+  };
+}
+
+/** The worst severity among findings ("fits" when there are none). */
+export function worstVerdict(findings: readonly { severity: Verdict }[]): Verdict {
+  let verdict: Verdict = "fits";
+  for (const finding of findings) {
+    if (finding.severity === "fails") return "fails";
+    if (finding.severity === "at-risk") verdict = "at-risk";
+  }
+  return verdict;
+}
+
+function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "fits"> | null {
+  if (value > fails) return "fails";
+  if (value > atRisk) return "at-risk";
+  return null;
+}
+
+function tensorFindings(
+  tensor: TensorPrediction,
+  limits: RangeLimits,
+  worst: WorstRisk,
+  options: TensorRiskOptions,
+): Finding[] {
+  const t = options.thresholds;
+  const findings: Finding[] = [];
+  const base = { format: limits.format, subject: tensor.id, source: "tensor" as const };
+  const overflow = grade(worst.overflowRisk, t.overflowAtRisk, t.overflowFails);
+  if (overflow !== null) {
+    const verb = limits.saturates ? "saturates" : "overflows";
+    findings.push({
+      ...base,
+      kind: limits.saturates ? "saturation" : "overflow",
+      severity: overflow,
+      value: worst.overflowRisk,
+      threshold: overflow === "fails" ? t.overflowFails : t.overflowAtRisk,
+      at: worst.overflowAt,
+      sentence:
+        `${tensor.id} ${verb} ${limits.format} with probability ${plainNumber(worst.overflowRisk)} per step ` +
+        `${when(worst.overflowAt)} (limit ${plainNumber(overflow === "fails" ? t.overflowFails : t.overflowAtRisk)}).`,
+    });
+  } else if (!options.perTensorScaling && worst.headroom !== null && worst.headroom < t.headroomAtRisk) {
+    findings.push({
+      ...base,
+      kind: "little-headroom",
+      severity: "at-risk",
+      value: worst.headroom,
+      threshold: t.headroomAtRisk,
+      at: worst.overflowAt,
+      sentence:
+        `${tensor.id} has ${binades(worst.headroom)} of headroom in ${limits.format} ${when(worst.overflowAt)}, ` +
+        `so a factor ${plainNumber(2 ** Math.max(0, worst.headroom))} of growth the prediction misses would overflow it.`,
+    });
+  }
+  if (GRADIENT_ROLES.includes(tensor.role)) {
+    const energy = grade(worst.flushedEnergy, t.energyAtRisk, t.energyFails);
+    if (energy !== null) {
+      findings.push({
+        ...base,
+        kind: "gradient-energy-flushed",
+        severity: energy,
+        value: worst.flushedEnergy,
+        threshold: energy === "fails" ? t.energyFails : t.energyAtRisk,
+        at: worst.flushAt,
+        sentence:
+          `${tensor.id} loses ${percent(worst.flushedEnergy)} of its squared norm to zero in ${limits.format} ` +
+          `${when(worst.flushAt)} (limit ${percent(energy === "fails" ? t.energyFails : t.energyAtRisk)}).`,
+      });
+    }
+  }
+  const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
+  if (flushed !== null) {
+    findings.push({
+      ...base,
+      kind: "flushed-values",
+      severity: flushed,
+      value: worst.flushedFraction,
+      threshold: flushed === "fails" ? t.flushedFails : t.flushedAtRisk,
+      at: worst.flushAt,
+      sentence:
+        `${percent(worst.flushedFraction)} of the nonzero elements of ${tensor.id} round to zero in ` +
+        `${limits.format} ${when(worst.flushAt)} (limit ${percent(flushed === "fails" ? t.flushedFails : t.flushedAtRisk)}).`,
+    });
+  }
+  if (worst.subnormalFraction > t.subnormalAtRisk) {
+    findings.push({
+      ...base,
+      kind: "subnormal-values",
+      severity: "at-risk",
+      value: worst.subnormalFraction,
+      threshold: t.subnormalAtRisk,
+      at: worst.flushAt,
+      sentence:
+        `${percent(worst.subnormalFraction)} of the nonzero elements of ${tensor.id} are subnormal in ` +
+        `${limits.format}, with fewer significant bits (limit ${percent(t.subnormalAtRisk)}).`,
+    });
+  }
+  return findings;
+}

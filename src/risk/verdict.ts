@@ -1,0 +1,59 @@
+/**
+ * From findings to a verdict per format, with the top reasons in one sentence each.
+ */
+import { FINDING_INFO } from "./catalogue.js";
+import { worstVerdict } from "./tensor.js";
+import { FINDING_KINDS, type Finding, type FindingKind, type Verdict } from "./types.js";
+
+/** A verdict and the sentences that explain it, most serious first. */
+export interface Judgement {
+  verdict: Verdict;
+  /** one sentence per kind of finding, most serious first */
+  reasons: string[];
+}
+
+const SEVERITY_RANK: Record<Finding["severity"], number> = { fails: 0, "at-risk": 1 };
+
+// kinds whose value is better when larger (binades of headroom); the others are worse when larger
+const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set(["little-headroom"]);
+
+function worse(a: Finding, b: Finding): Finding {
+  if (a.severity !== b.severity) return SEVERITY_RANK[a.severity] < SEVERITY_RANK[b.severity] ? a : b;
+  const aWorse = LARGER_IS_BETTER.has(a.kind) ? a.value < b.value : a.value > b.value;
+  return aWorse ? a : b;
+}
+
+/**
+ * The verdict of a set of findings (fits when empty), and one reason per kind: the worst finding's sentence,
+ * and how many more subjects share the kind. Ordered: fails before at risk, then by the catalogue order.
+ * @example judge([]) // => { verdict: "fits", reasons: [] }
+ */
+export function judge(findings: readonly Finding[]): Judgement {
+  const groups = new Map<FindingKind, { worst: Finding; severity: Finding["severity"]; subjects: Set<string> }>();
+  for (const finding of findings) {
+    const group = groups.get(finding.kind);
+    if (group === undefined) {
+      groups.set(finding.kind, { worst: finding, severity: finding.severity, subjects: new Set([finding.subject]) });
+    } else {
+      group.worst = worse(group.worst, finding);
+      if (finding.severity === "fails") group.severity = "fails";
+      group.subjects.add(finding.subject);
+    }
+  }
+  const ordered = [...groups.entries()].sort(
+    ([kindA, a], [kindB, b]) =>
+      SEVERITY_RANK[a.severity] - SEVERITY_RANK[b.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
+  );
+  const reasons = ordered.map(([kind, group]) => {
+    const others = group.subjects.size - 1;
+    if (others === 0) return group.worst.sentence;
+    const noun = group.worst.source === "tensor" ? (others === 1 ? "tensor" : "tensors") : others === 1 ? "operation" : "operations";
+    return `${group.worst.sentence.replace(/\.$/, "")}; ${others} other ${noun} ${FINDING_INFO[kind].short} too.`;
+  });
+  return { verdict: worstVerdict(findings), reasons };
+}
+
+/** The worse of two verdicts. */
+export function worseVerdict(a: Verdict, b: Verdict): Verdict {
+  return worstVerdict([{ severity: a }, { severity: b }]);
+}

@@ -1,0 +1,159 @@
+import { describe, expect, it } from "vitest";
+import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
+import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, type HazardContext } from "../../src/risk/index.js";
+import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+
+function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
+  return { elements: 1, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
+}
+
+function context(partial: Partial<HazardContext> = {}): HazardContext {
+  return {
+    activations: BINARY16,
+    gradients: BINARY16,
+    optimizerStates: BINARY32,
+    accumulate: BINARY32,
+    lossScale: 1,
+    beta2: 0.999,
+    workerGradients: "sum",
+    workers: 1,
+    thresholds: DEFAULT_THRESHOLDS,
+    ...partial,
+  };
+}
+
+function site(partial: Partial<HazardSite> & Pick<HazardSite, "kind">): HazardSite {
+  return { layer: "layer", input: profile({}), terms: 1, guarded: false, detail: "test site", ...partial };
+}
+
+describe("softmax exp overflow", () => {
+  // exp(x) rounds to infinity in binary16 from x = ln 65520 = 11.090110719 (SCIENCE.md §4)
+  it("logits of 11.1 overflow exp in binary16 without max subtraction; logits of 11.0 do not", () => {
+    const high = evaluateHazard(site({ kind: "softmax-exp", input: profile({ shape: "constant", rms: 11.1, elements: 64 }) }), context());
+    const low = evaluateHazard(site({ kind: "softmax-exp", input: profile({ shape: "constant", rms: 11.0, elements: 64 }) }), context());
+    expect(high.evaluations[0]?.criticalLevel).toBeCloseTo(11.090110719, 9);
+    expect(high.evaluations[0]?.value).toBe(1);
+    expect(hazardVerdict(high)).toBe("fails");
+    expect(high.findings[0]?.kind).toBe("softmax-exp-overflow");
+    expect(hazardVerdict(low)).toBe("fits");
+  });
+
+  it("the same logits in bfloat16 are safe: exp overflows there only from ln(3.3961775e38) = 88.720884077 (SCIENCE.md §4)", () => {
+    const check = evaluateHazard(
+      site({ kind: "softmax-exp", input: profile({ shape: "constant", rms: 11.1, elements: 64 }) }),
+      context({ activations: BFLOAT16_FTZ }),
+    );
+    expect(check.evaluations[0]?.criticalLevel).toBeCloseTo(88.720884077, 8);
+    expect(hazardVerdict(check)).toBe("fits");
+  });
+
+  it("Gaussian logits: only the positive tail counts, P(any of n logits > c) = 1 − (1 − Q(c/σ))^n", () => {
+    // σ = 11.090110719/4, so c/σ = 4 and Q(4) = P(|Z| > 4)/2 = 6.334248e-5/2 (SCIENCE.md §4)
+    const sigma = 11.090110719 / 4;
+    const check = evaluateHazard(site({ kind: "softmax-exp", input: profile({ rms: sigma, elements: 1000 }) }), context());
+    const expected = 1 - (1 - 6.334248e-5 / 2) ** 1000;
+    expect(Math.abs((check.evaluations[0]?.value ?? 0) - expected) / expected).toBeLessThan(1e-5);
+  });
+
+  it("with the row maximum subtracted exp cannot overflow; only a denominator of ≥ 65520 terms can", () => {
+    const guarded = evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 4096, input: profile({ shape: "constant", rms: 50 }) }), context());
+    expect(hazardVerdict(guarded)).toBe("fits");
+    const long = evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 70000 }), context());
+    expect(long.findings[0]?.kind).toBe("softmax-sum-overflow");
+  });
+});
+
+describe("norm sums of squares", () => {
+  // Σx² over N features overflows binary16 once rms > √(65504/N): 4.0 at N = 4096 (DESIGN.md §5 item 7)
+  const norm = (rms: number): HazardSite =>
+    site({ kind: "norm-sum-of-squares", terms: 4096, input: profile({ rms, elements: 4096 * 512 }) });
+
+  it("the critical rms is √(65520/4096) ≈ 4.0 for a binary16 accumulator", () => {
+    const check = evaluateHazard(norm(4.2), context({ accumulate: BINARY16 }));
+    expect(check.evaluations).toHaveLength(1);
+    expect(check.evaluations[0]?.criticalLevel).toBeCloseTo(Math.sqrt(65520 / 4096), 12);
+  });
+
+  it("rms 4.2 over 4096 features fails with a binary16 accumulator; rms 3.5 fits", () => {
+    expect(hazardVerdict(evaluateHazard(norm(4.2), context({ accumulate: BINARY16 })))).toBe("fails");
+    expect(hazardVerdict(evaluateHazard(norm(3.5), context({ accumulate: BINARY16 })))).toBe("fits");
+  });
+
+  it("with a binary32 accumulator the overflow is only a risk of implementations that keep statistics in binary16", () => {
+    const check = evaluateHazard(norm(4.2), context());
+    expect(check.evaluations.map((e) => [e.format, e.heldIn, e.verdict])).toEqual([
+      ["binary16", "activations", "at-risk"],
+      ["binary32", "accumulate", "fits"],
+    ]);
+  });
+});
+
+describe("accumulation", () => {
+  it("relative error √n·u: 4096 terms give 64·2^-11 = 0.03125 in binary16 (at risk), 64·2^-8 = 0.25 in bfloat16 (fails)", () => {
+    const sum = site({ kind: "accumulation", terms: 4096, input: profile({ rms: 1e-2, elements: 4096 * 100 }) });
+    const half = evaluateHazard(sum, context({ accumulate: BINARY16 }));
+    const brain = evaluateHazard(sum, context({ accumulate: BFLOAT16_FTZ }));
+    const single = evaluateHazard(sum, context());
+    expect(half.evaluations[0]?.value).toBe(0.03125);
+    expect(half.evaluations[0]?.verdict).toBe("at-risk");
+    expect(brain.evaluations[0]?.value).toBe(0.25);
+    expect(brain.evaluations[0]?.verdict).toBe("fails");
+    expect(hazardVerdict(single)).toBe("fits");
+  });
+
+  it("random-sign partial sums overflow when √n·rms approaches the threshold", () => {
+    const big = site({ kind: "accumulation", terms: 4096, input: profile({ rms: 2000, elements: 4096 * 8 }) });
+    const check = evaluateHazard(big, context({ accumulate: BINARY16 }));
+    // √4096·2000 = 128000 > 65520: the final sum alone passes the threshold with probability 2·Q(0.512) ≈ 0.61
+    expect(check.evaluations[1]?.value).toBeGreaterThan(0.6);
+    expect(check.findings.map((f) => f.kind)).toContain("accumulation-overflow");
+  });
+});
+
+describe("the loss value", () => {
+  it("sum reduction over 4096 positions of a loss near ln 1000 = 6.91 overflows binary16 (4096·6.908 = 28294 fits unscaled, not times 4)", () => {
+    const loss = site({ kind: "loss-value", terms: 4096, input: profile({ shape: "constant", rms: Math.log(1000) }) });
+    expect(hazardVerdict(evaluateHazard(loss, context({ accumulate: BINARY16 })))).toBe("fits");
+    const scaled = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 }));
+    expect(hazardVerdict(scaled)).toBe("fails");
+    expect(scaled.findings[0]?.kind).toBe("loss-value-overflow");
+  });
+});
+
+describe("gradient sums across workers", () => {
+  it("a sum over 64 workers of gradients whose largest is near 2000 overflows binary16", () => {
+    const gradients = site({ kind: "gradient-sum", terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
+    expect(hazardVerdict(evaluateHazard(gradients, context({ workers: 64 })))).toBe("fails");
+    expect(hazardVerdict(evaluateHazard(gradients, context({ workers: 64, workerGradients: "average" })))).toBe("fits");
+  });
+
+  it("dividing by the worker count first flushes small gradients", () => {
+    const small = site({ kind: "gradient-sum", terms: 64, input: profile({ rms: 1e-6, elements: 1e6 }) });
+    const check = evaluateHazard(small, context({ workers: 64, workerGradients: "average" }));
+    expect(check.findings.map((f) => f.kind)).toContain("gradient-sum-flush");
+  });
+});
+
+describe("optimizer constants", () => {
+  // ε = 1e-8 rounds to 0 in binary16 (|1e-8| < 2^-25); in bfloat16 it is 1.00117e-8 (SCIENCE.md §3.3, check 41)
+  const adam = (gradient: MagnitudeProfile): HazardSite => site({ kind: "optimizer-constant", constant: 1e-8, input: gradient });
+
+  it("ε = 1e-8 held in binary16 is flagged; with gradients whose (1 − β2)g² flushes it fails", () => {
+    const small = evaluateHazard(adam(profile({ rms: 1e-4, elements: 1e5 })), context({ optimizerStates: BINARY16 }));
+    expect(small.findings[0]?.kind).toBe("optimizer-epsilon-flushed");
+    expect(hazardVerdict(small)).toBe("fails");
+    // |g| ≤ √(2^-25/0.001) ≈ 5.5e-3 flushes (1 − β2)·g² (DESIGN.md §5 item 5)
+    expect(small.evaluations[0]?.criticalLevel).toBeCloseTo(Math.sqrt(2 ** -25 / 0.001), 12);
+  });
+
+  it("with large gradients and no zeros, ε rounding to zero is at risk rather than failing", () => {
+    const large = evaluateHazard(adam(profile({ shape: "constant", rms: 1, elements: 1e5 })), context({ optimizerStates: BINARY16 }));
+    expect(hazardVerdict(large)).toBe("at-risk");
+  });
+
+  it("ε = 1e-8 stays nonzero in bfloat16 and binary32", () => {
+    const gradient = profile({ rms: 1e-4, elements: 1e5 });
+    expect(hazardVerdict(evaluateHazard(adam(gradient), context({ optimizerStates: BFLOAT16_FTZ })))).toBe("fits");
+    expect(hazardVerdict(evaluateHazard(adam(gradient), context()))).toBe("fits");
+  });
+});

@@ -1,0 +1,50 @@
+/**
+ * Format ranges written out from the standards, so the risk tests do not depend on src/formats.
+ * binary16: IEEE 754-2019 Table 3.5 parameters (SCIENCE.md §1.2 check values 1-5); bfloat16: SCIENCE.md §1.2
+ * check values 6-7; binary32: C limits (check value 8); e4m3: OCP 8-bit specification (check values 11, 13, 15).
+ */
+import type { RangeLimits } from "../../src/risk/index.js";
+
+export const BINARY16: RangeLimits = {
+  format: "binary16",
+  maxFinite: 65504,
+  overflowLevel: 65520,
+  saturates: false,
+  flushBound: 2 ** -25,
+  minNormal: 2 ** -14,
+  smallest: 2 ** -24,
+  unitRoundoff: 2 ** -11,
+};
+
+export const BFLOAT16_FTZ: RangeLimits = {
+  format: "bfloat16",
+  maxFinite: (2 - 2 ** -7) * 2 ** 127,
+  overflowLevel: (2 - 2 ** -8) * 2 ** 127,
+  saturates: false,
+  flushBound: 2 ** -126,
+  minNormal: 2 ** -126,
+  smallest: 2 ** -126,
+  unitRoundoff: 2 ** -8,
+};
+
+export const BINARY32: RangeLimits = {
+  format: "binary32",
+  maxFinite: (2 - 2 ** -23) * 2 ** 127,
+  overflowLevel: (2 - 2 ** -24) * 2 ** 127,
+  saturates: false,
+  flushBound: 2 ** -150,
+  minNormal: 2 ** -126,
+  smallest: 2 ** -149,
+  unitRoundoff: 2 ** -24,
+};
+
+export const E4M3_SATURATING: RangeLimits = {
+  format: "e4m3",
+  maxFinite: 448,
+  overflowLevel: 448,
+  saturates: true,
+  flushBound: 2 ** -10,
+  minNormal: 2 ** -6,
+  smallest: 2 ** -9,
+  unitRoundoff: 2 ** -4,
+};

@@ -1,0 +1,121 @@
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
+import {
+  DEFAULT_THRESHOLDS,
+  FINDING_INFO,
+  FINDING_KINDS,
+  judge,
+  tensorFormatRisk,
+  tensorStatistics,
+  type RiskThresholds,
+} from "../../src/risk/index.js";
+import { BFLOAT16_FTZ, BINARY16, E4M3_SATURATING } from "./limits.js";
+
+function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
+  return { elements: 1e5, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
+}
+
+function tensor(partial: Partial<TensorPrediction> & Pick<TensorPrediction, "start" | "end">): TensorPrediction {
+  return {
+    id: "dense-1/weight-gradient",
+    layer: "dense-1",
+    layerIndex: 1,
+    family: "dense",
+    role: "weight-gradient",
+    slot: "gradients",
+    shape: [100, 1000],
+    ledger: [],
+    source: "predicted",
+    ...partial,
+  };
+}
+
+const options = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS as RiskThresholds };
+
+describe("tensorFormatRisk", () => {
+  it("keeps the worse of start and end, and says when", () => {
+    const t = tensor({ start: profile({ rms: 1e-3 }), end: profile({ rms: 1e-7 }) });
+    const risk = tensorFormatRisk(t, BINARY16, tensorStatistics(t, 1, DEFAULT_THRESHOLDS), options);
+    expect(risk.worst.flushedFraction).toBe(risk.end.flushedFraction);
+    expect(risk.worst.flushAt).toBe("end");
+    // σ = 1e-7 in binary16: 23.43% flushed (SCIENCE.md §4) → fails on flushed values and on gradient energy
+    expect(risk.end.flushedFraction).toBeCloseTo(0.2343, 4);
+    expect(risk.verdict).toBe("fails");
+    expect(risk.findings.map((f) => f.kind).sort()).toEqual(["flushed-values", "gradient-energy-flushed", "subnormal-values"]);
+  });
+
+  it("applies the loss scale to gradients: 2^10 moves σ = 1e-7 up to where binary16 flushes almost nothing", () => {
+    const t = tensor({ start: profile({ rms: 1e-7 }), end: profile({ rms: 1e-7 }) });
+    const scaled = tensorFormatRisk(t, BINARY16, tensorStatistics(t, 1024, DEFAULT_THRESHOLDS), options);
+    // σ = 1.024e-4: flushed ≈ 2^-25·√(2/π)/σ = 2.32e-4 (SCIENCE.md §4 small-t form)
+    expect(scaled.worst.flushedFraction).toBeCloseTo((2 ** -25 * Math.sqrt(2 / Math.PI)) / 1.024e-4, 6);
+    expect(scaled.findings.map((f) => f.kind)).not.toContain("flushed-values");
+  });
+
+  it("does not apply the loss scale to weights", () => {
+    const w = tensor({ role: "weight", slot: "weights", start: profile({ rms: 0.02 }), end: profile({ rms: 0.02 }) });
+    expect(tensorStatistics(w, 1024, DEFAULT_THRESHOLDS).factor).toBe(1);
+  });
+
+  it("a 1.5^100 growth (4.0656e17, SCIENCE.md §4) overflows binary16 but not bfloat16", () => {
+    const grown = tensor({ role: "activation-gradient", start: profile({ rms: 1.5 ** 100 }), end: profile({ rms: 1.5 ** 100 }) });
+    const stats = tensorStatistics(grown, 1, DEFAULT_THRESHOLDS);
+    expect(tensorFormatRisk(grown, BINARY16, stats, options).findings[0]?.kind).toBe("overflow");
+    expect(tensorFormatRisk(grown, BFLOAT16_FTZ, stats, options).verdict).toBe("fits");
+  });
+
+  it("flags little headroom when the max is within a binade of the largest finite value", () => {
+    const near = tensor({ role: "activation", slot: "activations", start: profile({ shape: "constant", rms: 40000 }), end: profile({ shape: "constant", rms: 40000 }) });
+    const risk = tensorFormatRisk(near, BINARY16, tensorStatistics(near, 1, DEFAULT_THRESHOLDS), options);
+    expect(risk.findings.map((f) => f.kind)).toEqual(["little-headroom"]);
+    expect(risk.verdict).toBe("at-risk");
+  });
+
+  it("saturating e4m3 reports saturation, not overflow", () => {
+    const big = tensor({ role: "activation", slot: "activations", start: profile({ rms: 300 }), end: profile({ rms: 300 }) });
+    const risk = tensorFormatRisk(big, E4M3_SATURATING, tensorStatistics(big, 1, DEFAULT_THRESHOLDS), options);
+    expect(risk.findings[0]?.kind).toBe("saturation");
+  });
+
+  it("per-tensor scaling maps the predicted max under 448 and leaves no saturation for a steady scale", () => {
+    const big = tensor({ role: "activation", slot: "activations", start: profile({ rms: 100 }), end: profile({ rms: 100 }) });
+    const risk = tensorFormatRisk(big, E4M3_SATURATING, tensorStatistics(big, 1, DEFAULT_THRESHOLDS), { ...options, perTensorScaling: true });
+    // max of 1e5 Gaussians exceeded once in 1000 steps ≈ 100·5.7; 2^⌊log2(448/570)⌋ = 2^-1, so saturation needs 8.96σ
+    expect(risk.scaleLog2.start).toBe(-1);
+    expect(risk.verdict).toBe("fits");
+  });
+
+  it("a format that does not hold the tensor reports numbers but no findings", () => {
+    const t = tensor({ start: profile({ rms: 1e-7 }), end: profile({ rms: 1e-7 }) });
+    const risk = tensorFormatRisk(t, BINARY16, tensorStatistics(t, 1, DEFAULT_THRESHOLDS), { ...options, judged: false });
+    expect(risk.worst.flushedFraction).toBeGreaterThan(0.2);
+    expect(risk.findings).toEqual([]);
+    expect(risk.verdict).toBe("fits");
+  });
+});
+
+describe("judge", () => {
+  it("fits with no reasons when nothing is found", () => {
+    expect(judge([])).toEqual({ verdict: "fits", reasons: [] });
+  });
+
+  it("puts failing kinds first and counts the other subjects of a kind", () => {
+    const base = { format: "binary16" as const, source: "tensor" as const, threshold: 0 };
+    const verdict = judge([
+      { ...base, kind: "subnormal-values", severity: "at-risk", subject: "a", value: 0.3, sentence: "A is subnormal." },
+      { ...base, kind: "overflow", severity: "fails", subject: "b", value: 0.5, sentence: "B overflows." },
+      { ...base, kind: "overflow", severity: "fails", subject: "c", value: 0.9, sentence: "C overflows." },
+    ]);
+    expect(verdict.verdict).toBe("fails");
+    expect(verdict.reasons).toEqual(["C overflows; 1 other tensor overflow too.", "A is subnormal."]);
+  });
+});
+
+describe("the catalogue", () => {
+  it("describes every finding kind", () => {
+    for (const kind of FINDING_KINDS) {
+      expect(FINDING_INFO[kind].title.length).toBeGreaterThan(0);
+      expect(FINDING_INFO[kind].description.length).toBeGreaterThan(40);
+    }
+  });
+});
