@@ -7,3 +7,5 @@ export * from "./tensor.js";
 export * from "./hazards.js";
 export * from "./verdict.js";
 export { plainNumber, percent, binades } from "./words.js";
+export * from "./judge.js";
+export * from "./find.js";

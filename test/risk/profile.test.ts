@@ -10,7 +10,8 @@ import {
   rangeLimits,
 } from "../../src/risk/index.js";
 import { normalQuantile } from "../../src/numeric/index.js";
-import { BINARY16, E4M3_SATURATING } from "./limits.js";
+import { FORMATS } from "../../src/formats/index.js";
+import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_SATURATING } from "./limits.js";
 
 function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
   return { elements: 1, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
@@ -158,5 +159,14 @@ describe("headroom and footroom", () => {
       headroom: null,
       footroom: null,
     });
+  });
+});
+
+describe("rangeLimits from the format model", () => {
+  it("matches the limits written out from the standards (IEEE 754-2019; OCP 8-bit specification)", () => {
+    expect(rangeLimits(FORMATS.binary16, { saturate: false, flushSubnormals: false })).toEqual(BINARY16);
+    expect(rangeLimits(FORMATS.binary32, { saturate: false, flushSubnormals: false })).toEqual(BINARY32);
+    expect(rangeLimits(FORMATS.bfloat16, { saturate: false, flushSubnormals: true })).toEqual(BFLOAT16_FTZ);
+    expect(rangeLimits(FORMATS.e4m3, { saturate: true, flushSubnormals: false })).toEqual(E4M3_SATURATING);
   });
 });

@@ -1,0 +1,113 @@
+/**
+ * The terminal rendering of `headroom explain`: the ledger of one tensor (each factor from the loss or the input
+ * to it, in log2 and as a multiplier, with the rule that produced it), then its risk in each judged format.
+ */
+import type { LedgerEntry } from "../magnitude/types.js";
+import type { CheckResult, TensorCheck } from "../risk/index.js";
+import { formatBinades, formatPercent, formatProbability, formatValue } from "./number.js";
+import { verdictText, wrap } from "./check-text.js";
+import { PLAIN, type Style } from "./style.js";
+import { renderTable } from "./table.js";
+
+/** Options of {@link renderExplainText}. */
+export interface ExplainTextOptions {
+  style?: Style;
+  /** wrap sentences at this many columns (default 100) */
+  width?: number;
+}
+
+function binadeWords(value: number | null): string {
+  return value === null ? "n/a (all zeros)" : `${formatBinades(value)} binades`;
+}
+
+function signed(log2: number): string {
+  const text = log2.toFixed(2);
+  return log2 > 0 ? `+${text}` : text === "-0.00" ? "0.00" : text;
+}
+
+/** The layers that shrink (most negative log2) or grow (most positive) the tensor most, up to `count` each. */
+export function strongestFactors(ledger: readonly LedgerEntry[], count = 3): { shrink: LedgerEntry[]; grow: LedgerEntry[] } {
+  const sorted = [...ledger].sort((a, b) => a.log2Factor - b.log2Factor);
+  return {
+    shrink: sorted.filter((entry) => entry.log2Factor < -1e-9).slice(0, count),
+    grow: sorted.filter((entry) => entry.log2Factor > 1e-9).reverse().slice(0, count),
+  };
+}
+
+/**
+ * Render the ledger and the risk of one tensor of a check.
+ * @example renderExplainText(result, result.tensors[0]) // => "headroom explain: ... \n"
+ */
+export function renderExplainText(result: CheckResult, tensor: TensorCheck, options: ExplainTextOptions = {}): string {
+  const style = options.style ?? PLAIN;
+  const width = options.width ?? 100;
+  const backward = tensor.role.endsWith("gradient") || tensor.ledger.some((entry) => entry.layer === "loss");
+  let out = style.role("heading", `headroom explain: ${tensor.id}`) + ` (${result.spec.name}, ${result.spec.source})\n`;
+  out += `  ${tensor.role} of ${tensor.layer} (${tensor.family}), shape [${tensor.shape.join(", ")}], held in the plan's ${tensor.slot} (${result.plan[tensor.slot]}).\n`;
+
+  out += "\n" + style.role("strong", `Ledger: from the ${backward ? "loss" : "input"} to this tensor, at the start of training`) + "\n";
+  if (tensor.ledger.length === 0) {
+    out += "  (the prediction has no factors for this tensor)\n";
+  } else {
+    let running = 0;
+    const rows = tensor.ledger.map((entry, index) => {
+      running += entry.log2Factor;
+      return [
+        String(index + 1),
+        entry.layer,
+        signed(entry.log2Factor),
+        `×${formatValue(2 ** entry.log2Factor, 3)}`,
+        running.toFixed(2),
+        entry.rule,
+        entry.source,
+      ];
+    });
+    out += renderTable(
+      [
+        { title: "#", align: "right" },
+        { title: "layer", maxWidth: 40 },
+        { title: "log2", align: "right" },
+        { title: "multiplier", align: "right" },
+        { title: "running log2", align: "right" },
+        { title: "rule", maxWidth: 60 },
+        { title: "source", maxWidth: 48 },
+      ],
+      rows,
+      { indent: "  ", styleHeader: (text) => style.role("strong", text) },
+    );
+    const total = tensor.ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);
+    out += wrap(
+      `The factors multiply to 2^${total.toFixed(2)} = ${formatValue(2 ** total)}; the predicted rms at the start is ` +
+        `${formatValue(tensor.start.rms)} (2^${Math.log2(tensor.start.rms || Number.MIN_VALUE).toFixed(2)}) and at the end of the horizon ${formatValue(tensor.end.rms)}.`,
+      width,
+      "  ",
+      "  ",
+    );
+    const { shrink, grow } = strongestFactors(tensor.ledger);
+    if (shrink.length > 0) {
+      out += wrap(`Shrinks it most: ${shrink.map((e) => `${e.layer} (${signed(e.log2Factor)})`).join(", ")}.`, width, "  ", "  ");
+    }
+    if (grow.length > 0) {
+      out += wrap(`Grows it most: ${grow.map((e) => `${e.layer} (${signed(e.log2Factor)})`).join(", ")}.`, width, "  ", "  ");
+    }
+  }
+  if (tensor.statistics.factor !== 1) {
+    out += `  The check multiplies it by the loss scale ${formatValue(tensor.statistics.factor)} before judging it.\n`;
+  }
+
+  out += "\n" + style.role("strong", "Risk") + "\n";
+  for (const risk of tensor.risks) {
+    const w = risk.worst;
+    const head = `  ${risk.format}${risk.judged ? "" : " (not holding it)"}: ${verdictText(risk.verdict, style)}; `;
+    const numbers =
+      `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)}, ` +
+      `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
+      `headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}` +
+      (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, per-tensor scale 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +
+      ".";
+    out += wrap(numbers, width, head, "      ");
+    for (const finding of risk.findings) out += wrap(finding.sentence, width, "    - ", "      ");
+  }
+  out += "\n" + wrap(result.caution, width, "", "");
+  return out;
+}

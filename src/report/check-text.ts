@@ -1,0 +1,206 @@
+/**
+ * The terminal rendering of a check: a verdict per format with its reasons, the tensors at risk, the operation
+ * hazards, the assumptions and the caution. Pure: a CheckResult in, a string out.
+ */
+import type { CheckResult, HazardCheck, TensorCheck, TensorFormatRisk, Verdict } from "../risk/index.js";
+import type { PrecisionPlan } from "../spec/types.js";
+import { formatBinades, formatProbability, formatValue } from "./number.js";
+import { PLAIN, type Style } from "./style.js";
+import { renderTable, type Cell } from "./table.js";
+
+/** Options of {@link renderCheckText}. */
+export interface CheckTextOptions {
+  /** list every tensor and every hazard, not only those at risk */
+  all?: boolean;
+  /** colours (default none) */
+  style?: Style;
+  /** wrap sentences at this many columns (default 100) */
+  width?: number;
+}
+
+/** How a verdict reads. */
+export const VERDICT_WORDS: Readonly<Record<Verdict, string>> = { fits: "fits", "at-risk": "at risk", fails: "fails" };
+
+/** A verdict, coloured by meaning. */
+export function verdictText(verdict: Verdict, style: Style = PLAIN): string {
+  return style.role(verdict === "fits" ? "fits" : verdict === "at-risk" ? "risk" : "fails", VERDICT_WORDS[verdict]);
+}
+
+const ENTRY_WORDS = {
+  activations: "activations",
+  weights: "weights",
+  gradients: "gradients",
+  optimizerStates: "optimizer states",
+  accumulate: "accumulation",
+} as const;
+
+/** "activations binary16, weights binary16, ..." */
+export function describePlan(plan: PrecisionPlan): string {
+  const parts = [
+    `activations ${plan.activations}`,
+    `weights ${plan.weights}`,
+    `gradients ${plan.gradients}`,
+    `optimizer states ${plan.optimizerStates}`,
+    `master weights ${plan.masterWeights}`,
+    `accumulation ${plan.accumulate}`,
+  ];
+  return parts.join(", ");
+}
+
+/** Word-wrap text to `width` columns; continuation lines start with `indent`. */
+export function wrap(text: string, width: number, firstIndent: string, indent: string): string {
+  const words = text.split(/\s+/).filter((w) => w !== "");
+  const lines: string[] = [];
+  let line = firstIndent;
+  let empty = true;
+  for (const word of words) {
+    if (!empty && line.length + 1 + word.length > width) {
+      lines.push(line);
+      line = indent + word;
+    } else {
+      line += (empty ? "" : " ") + word;
+    }
+    empty = false;
+  }
+  lines.push(line);
+  return lines.join("\n") + "\n";
+}
+
+function binadesCell(value: number | null): string {
+  return value === null ? "" : formatBinades(value);
+}
+
+/** rms or max as "start→end" when they differ by more than 5%, else one value. */
+function pair(start: number, end: number): string {
+  if (start === end || (start > 0 && Math.abs(end / start - 1) <= 0.05)) return formatValue(start, 2);
+  return `${formatValue(start, 2)}→${formatValue(end, 2)}`;
+}
+
+/** The rows of the tensor table: each tensor in each format that holds it. */
+export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorCheck; risk: TensorFormatRisk }[] {
+  const rows: { tensor: TensorCheck; risk: TensorFormatRisk }[] = [];
+  for (const tensor of result.tensors) {
+    for (const risk of tensor.risks) {
+      if (!risk.judged) continue;
+      if (all || risk.verdict !== "fits") rows.push({ tensor, risk });
+    }
+  }
+  return rows;
+}
+
+/** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, overflow per step, verdict). */
+export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorFormatRisk }[], style: Style = PLAIN): string {
+  const cells: Cell[][] = rows.map(({ tensor, risk }) => [
+    tensor.layer,
+    tensor.role + (tensor.id.includes(":") ? `:${tensor.id.slice(tensor.id.indexOf(":") + 1)}` : ""),
+    risk.format,
+    pair(tensor.statistics.start.rms, tensor.statistics.end.rms),
+    pair(tensor.statistics.start.max, tensor.statistics.end.max),
+    binadesCell(risk.worst.headroom),
+    binadesCell(risk.worst.footroom),
+    formatProbability(risk.worst.flushedFraction),
+    formatProbability(risk.worst.overflowRisk),
+    verdictText(risk.verdict, style),
+  ]);
+  return renderTable(
+    [
+      { title: "layer", maxWidth: 40 },
+      { title: "role" },
+      { title: "format" },
+      { title: "rms", align: "right" },
+      { title: "max", align: "right" },
+      { title: "headroom", align: "right" },
+      { title: "footroom", align: "right" },
+      { title: "flushed", align: "right" },
+      { title: "overflow/step", align: "right" },
+      { title: "verdict", align: "left" },
+    ],
+    cells,
+    { indent: "  ", styleHeader: (text) => style.role("strong", text) },
+  );
+}
+
+const HAZARD_WORDS: Readonly<Record<HazardCheck["kind"], string>> = {
+  "softmax-exp": "softmax exp",
+  "norm-sum-of-squares": "norm sum of squares",
+  accumulation: "accumulation",
+  "loss-value": "loss value",
+  "gradient-sum": "gradient sum",
+  "optimizer-constant": "optimizer epsilon",
+};
+
+/** The hazards section: one line per evaluation that is not "fits" (every evaluation with `all`). */
+export function renderHazards(hazards: readonly HazardCheck[], all: boolean, width: number, style: Style = PLAIN): string {
+  let out = "";
+  for (const hazard of hazards) {
+    for (const evaluation of hazard.evaluations) {
+      if (!all && evaluation.verdict === "fits") continue;
+      const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
+      out += wrap(evaluation.sentence, width, head, "      ");
+    }
+  }
+  return out;
+}
+
+/**
+ * Render a check for the terminal.
+ * @example renderCheckText(check(spec)) // => "headroom check: deep-relu-he ...\n"
+ */
+export function renderCheckText(result: CheckResult, options: CheckTextOptions = {}): string {
+  const style = options.style ?? PLAIN;
+  const width = options.width ?? 100;
+  const all = options.all ?? false;
+  let out = "";
+  out += style.role("heading", `headroom check: ${result.spec.name}`) + ` (${result.spec.source})\n`;
+  out += wrap(`plan ${result.plan.name}: ${describePlan(result.plan)}.`, width, "", "  ");
+  out += wrap(
+    result.lossScale.origin === "none"
+      ? "loss scale: none given, gradients judged unscaled."
+      : `loss scale: ${formatValue(result.lossScale.value)} (from the ${result.lossScale.origin === "plan" ? "plan" : "command line"}).`,
+    width,
+    "",
+    "  ",
+  );
+
+  out += "\n" + style.role("strong", "Verdict per format") + "\n";
+  const formatWidth = Math.max(...result.formats.map((f) => f.format.length));
+  for (const format of result.formats) {
+    const holds = format.holds.map((entry) => ENTRY_WORDS[entry]).join(", ");
+    const verdict = verdictText(format.verdict, style) + " ".repeat(Math.max(0, 7 - VERDICT_WORDS[format.verdict].length));
+    out +=
+      `  ${format.format.padEnd(formatWidth)}  ${verdict}  ` +
+      style.role("muted", `${format.planned ? "holds" : "in place of the plan's formats, holds"} ${holds || "nothing"}; ${format.tensorsJudged} tensors`) +
+      "\n";
+    const shown = format.reasons.slice(0, 5);
+    for (const reason of shown) out += wrap(reason, width, "    - ", "      ");
+    if (format.reasons.length > shown.length) {
+      out += `    - and ${format.reasons.length - shown.length} more kinds of finding (--json lists every one).\n`;
+    }
+  }
+
+  const rows = tensorRows(result, all);
+  const judgedCount = result.tensors.reduce((n, t) => n + t.risks.filter((r) => r.judged).length, 0);
+  out += "\n" + style.role("strong", all ? "Tensors" : "Tensors at risk") + "\n";
+  if (rows.length === 0) {
+    out += `  none of the ${result.tensors.length} tensors is at risk.\n`;
+  } else {
+    out += renderTensorTable(rows, style);
+    if (!all) out += style.role("muted", `  ${rows.length} of ${judgedCount} shown; --all lists every tensor.`) + "\n";
+  }
+  out += style.role(
+    "muted",
+    "  rms and max are after the loss scale (start→end of the horizon); max is the level exceeded once in " +
+      `${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom in binades; flushed is the share of nonzero elements.`,
+  ).replace(/^/, "") + "\n";
+
+  const hazardText = renderHazards(result.hazards, all, width, style);
+  const evaluationCount = result.hazards.reduce((n, h) => n + h.evaluations.length, 0);
+  out += "\n" + style.role("strong", all ? "Operation hazards" : "Operation hazards at risk") + "\n";
+  if (hazardText === "") out += `  none of the ${evaluationCount} operation checks is at risk.\n`;
+  else out += hazardText;
+
+  out += "\n" + style.role("strong", "Assumptions") + "\n";
+  for (const assumption of result.assumptions) out += wrap(assumption, width, "  - ", "    ");
+  out += "\n" + wrap(result.caution, width, "", "");
+  return out;
+}

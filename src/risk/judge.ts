@@ -1,0 +1,405 @@
+/**
+ * A prediction judged against a precision plan: risk per tensor and format, operation hazards, a verdict per
+ * format with its reasons. Pure; `check` (src/check.ts) builds the prediction and calls {@link judgePrediction}.
+ */
+import { FORMATS, type Format } from "../formats/index.js";
+import { FORMAT_NAMES, isFormatName, type FormatName } from "../formats/names.js";
+import type {
+  HazardSite,
+  LedgerEntry,
+  MagnitudeProfile,
+  PlanSlot,
+  Prediction,
+  TensorPrediction,
+  TensorRole,
+} from "../magnitude/types.js";
+import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
+import { DEFAULT_THRESHOLDS } from "./catalogue.js";
+import { evaluateHazard, type HazardContext } from "./hazards.js";
+import { rangeLimits } from "./profile.js";
+import { tensorFormatRisk, tensorStatistics, worstVerdict, type TensorFormatRisk, type TensorStatistics } from "./tensor.js";
+import type { Finding, HazardCheck, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { judge } from "./verdict.js";
+import { plainNumber } from "./words.js";
+
+/** Options of `check` and {@link judgePrediction}. */
+export interface CheckOptions {
+  /** judge these formats instead of the plan's (a format the plan does not use replaces its reduced formats) */
+  formats?: readonly FormatName[];
+  /** a static loss scale to judge instead of the plan's */
+  lossScale?: number;
+  /** the plan to judge, by name: the spec's `precision` (the default) or one of its `plans` */
+  plan?: string;
+  /** thresholds to use instead of the defaults (DEFAULT_THRESHOLDS) */
+  thresholds?: Partial<RiskThresholds>;
+}
+
+/** The plan entries a format can hold. */
+export type PlanEntry = PlanSlot | "accumulate";
+
+const PLAN_ENTRIES: readonly PlanEntry[] = ["activations", "weights", "gradients", "optimizerStates", "accumulate"];
+
+/** The judgement of one format. */
+export interface FormatCheck {
+  format: FormatName;
+  /** whether the plan uses the format; otherwise it stands in for the plan's reduced formats */
+  planned: boolean;
+  /** the plan entries the format holds when it is judged */
+  holds: PlanEntry[];
+  verdict: Verdict;
+  /** one sentence per kind of finding, most serious first */
+  reasons: string[];
+  /** tensors the format holds */
+  tensorsJudged: number;
+  findings: Finding[];
+}
+
+/** One tensor: its prediction and its risk in every judged format. */
+export interface TensorCheck {
+  id: string;
+  layer: string;
+  layerIndex: number;
+  family: LayerFamily | "input" | "loss";
+  role: TensorRole;
+  slot: PlanSlot;
+  shape: number[];
+  source: "predicted" | "measured";
+  /** predicted profiles, before the loss scale */
+  start: MagnitudeProfile;
+  end: MagnitudeProfile;
+  ledger: LedgerEntry[];
+  /** rms, predicted max and low magnitude after the loss scale (`statistics.factor`) */
+  statistics: TensorStatistics;
+  /** one entry per judged format, in the order of `formats` */
+  risks: TensorFormatRisk[];
+  /** the worst verdict over the formats that hold it */
+  verdict: Verdict;
+}
+
+/** The loss scale the check applied to gradients, and where it came from. */
+export interface AppliedLossScale {
+  value: number;
+  origin: "plan" | "option" | "none";
+}
+
+/** Everything `check` found: plain JSON-able data (documented field by field in README.md). */
+export interface CheckResult {
+  /** version of this result's layout */
+  version: 1;
+  spec: { name: string; source: string; description: string };
+  /** the plan judged */
+  plan: PrecisionPlan;
+  lossScale: AppliedLossScale;
+  /** the worst verdict over the judged formats */
+  verdict: Verdict;
+  formats: FormatCheck[];
+  /** every tensor of one training step, forward order then backward order */
+  tensors: TensorCheck[];
+  hazards: HazardCheck[];
+  thresholds: RiskThresholds;
+  /** what the prediction and the judgement assume, one sentence each */
+  assumptions: string[];
+  /** the reminder that these are estimates, and the run that confirms them */
+  caution: string;
+}
+
+/** The caution every answer carries. */
+export const CAUTION =
+  "These are estimates from an analytic model of the network's magnitudes, not guarantees: confirm them with a " +
+  "short run of a few hundred steps in the planned formats, watching for inf/NaN, zero gradients and the loss, " +
+  "before a long one.";
+
+/** Whether a format is narrower than binary32 (fewer significand bits): a reduced-precision format. */
+function isReduced(format: Format): boolean {
+  return format.precision < FORMATS.binary32.precision;
+}
+
+function entryFormat(plan: PrecisionPlan, entry: PlanEntry): FormatName {
+  return plan[entry];
+}
+
+/**
+ * The plan as it stands when `format` is judged: the plan itself when it uses the format; otherwise the plan
+ * with every reduced-precision entry held in `format` instead (or, when the plan has none, its activations,
+ * weights and gradients).
+ */
+export function planFor(plan: PrecisionPlan, format: FormatName): PrecisionPlan {
+  if (PLAN_ENTRIES.some((entry) => entryFormat(plan, entry) === format)) return plan;
+  const reduced = PLAN_ENTRIES.filter((entry) => isReduced(FORMATS[entryFormat(plan, entry)]));
+  const replaced: readonly PlanEntry[] = reduced.length > 0 ? reduced : ["activations", "weights", "gradients"];
+  const result: PrecisionPlan = { ...plan };
+  for (const entry of replaced) result[entry] = format;
+  return result;
+}
+
+/** The formats a plan uses, in plan-entry order, each once. */
+export function planFormats(plan: PrecisionPlan): FormatName[] {
+  const formats: FormatName[] = [];
+  for (const entry of PLAN_ENTRIES) {
+    const format = entryFormat(plan, entry);
+    if (!formats.includes(format)) formats.push(format);
+  }
+  return formats;
+}
+
+/** A format's range under the plan's conversion options. */
+export function limitsFor(plan: PrecisionPlan, name: FormatName): RangeLimits {
+  const format = FORMATS[name];
+  const eightBit = format.bits === 8;
+  return rangeLimits(format, {
+    // the plan's overflow mode governs 8-bit conversions; IEEE 16- and 32-bit formats overflow to infinity
+    saturate: eightBit && plan.overflow === "saturate",
+    // bfloat16 is modelled flush-to-zero by default (SCIENCE.md §1.2 modelling choice)
+    flushSubnormals: plan.flushSubnormals || format.subnormalsOftenFlushed,
+  });
+}
+
+function appliedLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLossScale {
+  if (options.lossScale !== undefined) {
+    if (!(options.lossScale > 0) || !Number.isFinite(options.lossScale)) {
+      throw new RangeError(`the loss scale must be a positive finite number, got ${options.lossScale}`);
+    }
+    return { value: options.lossScale, origin: "option" };
+  }
+  if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
+  return { value: 1, origin: "none" };
+}
+
+function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {
+  if (options.formats === undefined || options.formats.length === 0) return planFormats(plan);
+  const formats: FormatName[] = [];
+  for (const name of options.formats) {
+    if (!isFormatName(name)) throw new RangeError(`unknown format "${String(name)}"; accepted: ${FORMAT_NAMES.join(", ")}`);
+    if (!formats.includes(name)) formats.push(name);
+  }
+  return formats;
+}
+
+/**
+ * Judge a prediction (from the magnitude engine, or measured) against the spec's plan. This is `check` after the
+ * prediction step; it lets a caller judge a prediction it made or adjusted itself.
+ */
+export function judgePrediction(spec: NetworkSpec, prediction: Prediction, options: CheckOptions = {}): CheckResult {
+  const plan = spec.precision;
+  const thresholds: RiskThresholds = { ...DEFAULT_THRESHOLDS, ...options.thresholds };
+  const lossScale = appliedLossScale(plan, options);
+  const formats = judgedFormats(plan, options);
+  const plans = new Map(formats.map((format) => [format, planFor(plan, format)] as const));
+
+  const tensors: TensorCheck[] = prediction.tensors.map((tensor) => {
+    const statistics = tensorStatistics(tensor, lossScale.value, thresholds);
+    const risks = formats.map((format) => {
+      const evaluated = plans.get(format) ?? plan;
+      const judged = evaluated[tensor.slot] === format;
+      return tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {
+        judged,
+        perTensorScaling: FORMATS[format].bits === 8 && evaluated.scaling !== "none",
+        thresholds,
+      });
+    });
+    return {
+      id: tensor.id,
+      layer: tensor.layer,
+      layerIndex: tensor.layerIndex,
+      family: tensor.family,
+      role: tensor.role,
+      slot: tensor.slot,
+      shape: tensor.shape,
+      source: tensor.source,
+      start: tensor.start,
+      end: tensor.end,
+      ledger: tensor.ledger,
+      statistics,
+      risks,
+      verdict: worstVerdict(risks.flatMap((risk) => risk.findings)),
+    };
+  });
+
+  const sites = [
+    ...prediction.hazards.map((site) => ({ site, origin: "prediction" as const })),
+    ...trainingSites(spec, prediction).map((site) => ({ site, origin: "training setup" as const })),
+  ];
+  const hazards: HazardCheck[] = sites.map(({ site, origin }) => {
+    // each judged format sees the site under its own plan; keep the evaluations in that format
+    const perFormat = formats.map((format) =>
+      evaluateHazard(site, hazardContext(spec, plans.get(format) ?? plan, lossScale.value, thresholds), origin),
+    );
+    const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, plan, lossScale.value, thresholds), origin);
+    return {
+      ...first,
+      evaluations: perFormat.flatMap((c, i) => c.evaluations.filter((e) => e.format === formats[i])),
+      findings: perFormat.flatMap((c, i) => c.findings.filter((f) => f.format === formats[i])),
+    };
+  });
+
+  const formatChecks: FormatCheck[] = formats.map((format) => {
+    const evaluated = plans.get(format) ?? plan;
+    const findings = [
+      ...tensors.flatMap((tensor) => tensor.risks.filter((risk) => risk.format === format).flatMap((risk) => risk.findings)),
+      ...hazards.flatMap((hazard) => hazard.findings.filter((finding) => finding.format === format)),
+    ];
+    const judgement = judge(findings);
+    return {
+      format,
+      planned: evaluated === plan,
+      holds: PLAN_ENTRIES.filter((entry) => entryFormat(evaluated, entry) === format),
+      verdict: judgement.verdict,
+      reasons: judgement.reasons,
+      tensorsJudged: tensors.filter((tensor) => evaluated[tensor.slot] === format).length,
+      findings,
+    };
+  });
+
+  return {
+    version: 1,
+    spec: { name: spec.name, source: spec.source, description: spec.description },
+    plan,
+    lossScale,
+    verdict: worstVerdict(formatChecks.map((f) => ({ severity: f.verdict }))),
+    formats: formatChecks,
+    tensors,
+    hazards,
+    thresholds,
+    assumptions: [...prediction.assumptions, ...checkAssumptions(plan, formats, plans, lossScale, sites.length > prediction.hazards.length)],
+    caution: CAUTION,
+  };
+}
+
+function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number, thresholds: RiskThresholds): HazardContext {
+  return {
+    activations: limitsFor(plan, plan.activations),
+    gradients: limitsFor(plan, plan.gradients),
+    optimizerStates: limitsFor(plan, plan.optimizerStates),
+    accumulate: limitsFor(plan, plan.accumulate),
+    lossScale,
+    beta2: spec.training.optimizer.betas[1],
+    workerGradients: spec.training.workerGradients,
+    workers: spec.training.workers,
+    thresholds,
+  };
+}
+
+function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest"): { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined {
+  let best: { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined;
+  for (const tensor of tensors) {
+    for (const profile of [tensor.start, tensor.end]) {
+      if (!(profile.rms > 0)) continue;
+      const better = best === undefined || (pick === "largest" ? profile.rms > best.profile.rms : profile.rms < best.profile.rms);
+      if (better) best = { tensor, profile };
+    }
+  }
+  return best;
+}
+
+/**
+ * Operation sites that follow from the training setup rather than from a layer: the loss value, gradient sums
+ * across workers and accumulation steps, and Adam's epsilon. Added when the prediction has none of the kind.
+ */
+export function trainingSites(spec: NetworkSpec, prediction: Prediction): HazardSite[] {
+  const has = (kind: HazardSite["kind"]) => prediction.hazards.some((site) => site.kind === kind);
+  const weightGradients = prediction.tensors.filter((tensor) => tensor.role === "weight-gradient");
+  const training = spec.training;
+  const sites: HazardSite[] = [];
+
+  if (!has("loss-value")) {
+    const lossTensor = prediction.tensors.find((tensor) => tensor.role === "loss");
+    const perTerm =
+      lossTensor !== undefined
+        ? lossTensor.start
+        : training.loss.kind === "cross-entropy"
+          ? constantProfile(Math.log(training.loss.classes))
+          : undefined;
+    if (perTerm !== undefined) {
+      const positions = spec.input.kind === "image" ? 1 : spec.input.positions;
+      const terms = training.loss.reduction === "sum" ? training.batch * positions : 1;
+      sites.push({
+        kind: "loss-value",
+        layer: "loss",
+        input: { ...perTerm, elements: 1, zeroFraction: 0 },
+        terms,
+        guarded: false,
+        detail:
+          training.loss.reduction === "sum"
+            ? `${training.loss.kind} loss summed over ${terms} terms, times the loss scale`
+            : `${training.loss.kind} loss (mean reduction), times the loss scale`,
+      });
+    }
+  }
+
+  const contributions = training.workers * training.accumulationSteps;
+  if (!has("gradient-sum") && contributions > 1) {
+    const pick = byRms(weightGradients, training.workerGradients === "sum" ? "largest" : "smallest");
+    if (pick !== undefined) {
+      sites.push({
+        kind: "gradient-sum",
+        layer: pick.tensor.layer,
+        input: pick.profile,
+        terms: contributions,
+        guarded: false,
+        detail:
+          `${pick.tensor.id} summed over ${training.workers} worker${training.workers === 1 ? "" : "s"} × ` +
+          `${training.accumulationSteps} accumulation step${training.accumulationSteps === 1 ? "" : "s"} (${training.workerGradients})`,
+      });
+    }
+  }
+
+  const optimizer = training.optimizer;
+  if (!has("optimizer-constant") && (optimizer.kind === "adam" || optimizer.kind === "adamw")) {
+    const pick = byRms(weightGradients, "smallest");
+    sites.push({
+      kind: "optimizer-constant",
+      layer: pick?.tensor.layer ?? "optimizer",
+      input: pick?.profile ?? constantProfile(0),
+      terms: 1,
+      guarded: false,
+      constant: optimizer.epsilon,
+      detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} and second moments (β2 = ${optimizer.betas[1]}) in the optimizer-state format`,
+    });
+  }
+  return sites;
+}
+
+function constantProfile(value: number): MagnitudeProfile {
+  return { elements: 1, zeroFraction: 0, shape: "constant", rms: value, log2Spread: 0 };
+}
+
+function checkAssumptions(
+  plan: PrecisionPlan,
+  formats: readonly FormatName[],
+  plans: ReadonlyMap<FormatName, PrecisionPlan>,
+  lossScale: AppliedLossScale,
+  addedSites: boolean,
+): string[] {
+  const notes: string[] = [];
+  if (lossScale.origin === "none") {
+    notes.push("The plan gives no loss scale, so gradients are judged unscaled (loss scale 1).");
+  } else {
+    notes.push(`Gradients and the loss are judged multiplied by the loss scale ${plainNumber(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}).`);
+  }
+  notes.push(
+    "Overflow risk is the probability that at least one element of a step passes the overflow threshold, with " +
+      "elements independent given the scale and the scale spread over draws as predicted.",
+  );
+  for (const format of formats) {
+    const evaluated = plans.get(format);
+    if (evaluated !== undefined && evaluated !== plan) {
+      const held = PLAN_ENTRIES.filter((entry) => evaluated[entry] === format);
+      notes.push(`${format} is not in the plan; it is judged holding ${held.join(", ")} in place of the plan's formats.`);
+    }
+  }
+  if (formats.includes("bfloat16")) {
+    notes.push("bfloat16 values below the smallest normal 2^-126 are treated as flushed to zero, as much hardware does (SCIENCE.md §1.2).");
+  }
+  if (formats.some((format) => FORMATS[format].bits === 8)) {
+    notes.push(
+      plan.scaling === "none"
+        ? "8-bit formats are judged without scale factors."
+        : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (block scaling is judged as per-tensor scaling, which is conservative)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.`,
+    );
+  }
+  if (addedSites) {
+    notes.push("The loss value, gradient sums across workers and the optimizer epsilon are judged from the training setup.");
+  }
+  return notes;
+}
+

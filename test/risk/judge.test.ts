@@ -1,0 +1,140 @@
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
+import { findTensor, judgePrediction, planFor, planFormats } from "../../src/risk/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+import type { NetworkSpec } from "../../src/spec/types.js";
+
+const SPEC_TEXT = `name: tiny
+input: { features: 64 }
+training:
+  batch: 32
+  loss: { kind: cross-entropy, classes: 10 }
+precision:
+  activations: binary16
+  weights: binary16
+  gradients: binary16
+  optimizer-states: binary16
+  accumulate: binary32
+layers:
+  - type: dense
+    width: 10
+`;
+
+function spec(text = SPEC_TEXT): NetworkSpec {
+  const parsed = parseSpec(text, "tiny.yaml");
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  return parsed.spec;
+}
+
+function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
+  return { elements: 640, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
+}
+
+function tensor(id: string, partial: Partial<TensorPrediction>): TensorPrediction {
+  const [layer = "", role = "activation"] = id.split("/");
+  return {
+    id,
+    layer,
+    layerIndex: 0,
+    family: "dense",
+    role: role as TensorPrediction["role"],
+    slot: "activations",
+    shape: [32, 10],
+    start: profile({}),
+    end: profile({}),
+    ledger: [{ layer: "input", rule: "input scale 1", log2Factor: 0, source: "the spec" }],
+    source: "predicted",
+    ...partial,
+  };
+}
+
+const PREDICTION: Prediction = {
+  specName: "tiny",
+  tensors: [
+    tensor("dense-0/pre-activation", {}),
+    tensor("dense-0/weight", { role: "weight", slot: "weights", start: profile({ rms: 0.125 }), end: profile({ rms: 0.125 }) }),
+    tensor("dense-0/weight-gradient", { role: "weight-gradient", slot: "gradients", start: profile({ rms: 1e-7 }), end: profile({ rms: 1e-7 }) }),
+  ],
+  hazards: [],
+  assumptions: ["A test prediction."],
+};
+
+describe("judgePrediction", () => {
+  it("judges each format of the plan once, in plan order, with the tensors it holds", () => {
+    const result = judgePrediction(spec(), PREDICTION);
+    expect(result.formats.map((f) => [f.format, f.holds, f.tensorsJudged])).toEqual([
+      ["binary16", ["activations", "weights", "gradients", "optimizerStates"], 3],
+      ["binary32", ["accumulate"], 0],
+    ]);
+  });
+
+  it("fails binary16 for a gradient at rms 1e-7 (23% flushed, SCIENCE.md §4) and for Adam's epsilon 1e-8", () => {
+    const result = judgePrediction(spec(), PREDICTION);
+    const binary16 = result.formats[0];
+    expect(binary16?.verdict).toBe("fails");
+    expect(result.verdict).toBe("fails");
+    const kinds = new Set(binary16?.findings.map((f) => f.kind));
+    expect(kinds.has("gradient-energy-flushed")).toBe(true);
+    expect(kinds.has("flushed-values")).toBe(true);
+    expect(kinds.has("optimizer-epsilon-flushed")).toBe(true);
+    expect(binary16?.reasons[0]).toMatch(/^23\.4% of the nonzero elements of dense-0\/weight-gradient round to zero/);
+    expect(result.formats[1]?.verdict).toBe("fits");
+  });
+
+  it("a loss scale of 2^12 lifts the gradient out of the flush range", () => {
+    const result = judgePrediction(spec(), PREDICTION, { lossScale: 4096 });
+    const kinds = result.formats[0]?.findings.map((f) => f.kind);
+    expect(kinds).not.toContain("flushed-values");
+    expect(kinds).not.toContain("gradient-energy-flushed");
+    expect(result.lossScale).toEqual({ value: 4096, origin: "option" });
+  });
+
+  it("a format outside the plan stands in for the plan's reduced formats", () => {
+    const plan = spec().precision;
+    expect(planFormats(plan)).toEqual(["binary16", "binary32"]);
+    const bf = planFor(plan, "bfloat16");
+    expect([bf.activations, bf.weights, bf.gradients, bf.optimizerStates, bf.accumulate]).toEqual([
+      "bfloat16",
+      "bfloat16",
+      "bfloat16",
+      "bfloat16",
+      "binary32",
+    ]);
+    const result = judgePrediction(spec(), PREDICTION, { formats: ["bfloat16"] });
+    expect(result.formats.map((f) => [f.format, f.planned, f.verdict])).toEqual([["bfloat16", false, "fits"]]);
+  });
+
+  it("adds the training-setup hazards the prediction lacks: the loss value and Adam's epsilon", () => {
+    const result = judgePrediction(spec(), PREDICTION);
+    expect(result.hazards.map((h) => [h.kind, h.origin])).toEqual([
+      ["loss-value", "training setup"],
+      ["optimizer-constant", "training setup"],
+    ]);
+  });
+
+  it("is plain JSON-able data and carries the caution", () => {
+    const result = judgePrediction(spec(), PREDICTION);
+    expect(JSON.parse(JSON.stringify(result))).toEqual(result);
+    expect(result.caution).toMatch(/estimates/);
+    expect(result.caution).toMatch(/short run of a few hundred steps/);
+  });
+
+  it("rejects an unknown format and a non-positive loss scale with a RangeError echoing the value", () => {
+    expect(() => judgePrediction(spec(), PREDICTION, { formats: ["fp12" as never] })).toThrow(/"fp12"/);
+    expect(() => judgePrediction(spec(), PREDICTION, { lossScale: -2 })).toThrow(/-2/);
+  });
+});
+
+describe("findTensor", () => {
+  const tensors = judgePrediction(spec(), PREDICTION).tensors;
+  it("finds by id, by layer and role, and suggests near ids otherwise", () => {
+    expect(findTensor(tensors, "dense-0/weight").ok).toBe(true);
+    const byWords = findTensor(tensors, "dense-0 weight-gradient");
+    expect(byWords.ok && byWords.tensor.id).toBe("dense-0/weight-gradient");
+    const ambiguous = findTensor(tensors, "dense-0");
+    expect(ambiguous.ok).toBe(false);
+    expect(!ambiguous.ok && ambiguous.reason).toBe("ambiguous");
+    const missing = findTensor(tensors, "dense-9/weight");
+    expect(!missing.ok && missing.candidates[0]).toBe("dense-0/weight");
+  });
+});
