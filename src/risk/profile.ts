@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, overDraws, solveLevel } from "./laws.js";
+import { elementLaw, mixtureCrossing, overDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -116,8 +116,16 @@ export function profileStatistics(
       low: profile.rms * 2 ** (-spread * normalUpperQuantile(levels.lowQuantile)),
     };
   }
-  const max = solveLevel((t) => probabilityAnyAbove(profile, t), levels.maxQuantile, profile.rms, false);
-  const low = solveLevel((t) => fractionBelow(profile, t), levels.lowQuantile, profile.rms, true);
+  const law = elementLaw(profile);
+  const n = nonzeroElements(profile);
+  // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); for a
+  // bounded shape use the Gaussian law and cap the level at the bound
+  const gaussianLike = profile.shape === "bounded" ? elementLaw({ ...profile, shape: "gaussian" }) : law;
+  const maxLevel = mixtureCrossing((v) => anyOf(gaussianLike.above(1, 2 ** v), n), profile.log2Spread, levels.maxQuantile, true);
+  const lowLevel = mixtureCrossing((v) => gaussianLike.below(1, 2 ** v), profile.log2Spread, levels.lowQuantile, false);
+  let max = profile.rms * 2 ** maxLevel;
+  if (profile.shape === "bounded" && profile.bound !== undefined && profile.bound > 0) max = Math.min(max, profile.bound);
+  const low = profile.rms * 2 ** lowLevel;
   return { rms: profile.rms, max, low };
 }
 
