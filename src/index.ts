@@ -14,3 +14,4 @@ export * from "./report/index.js";
 export * from "./batch/index.js";
 // OverflowMode is declared by both formats and spec (the same string union); name one to settle `export *`
 export type { OverflowMode } from "./formats/index.js";
+export * from "./check.js";

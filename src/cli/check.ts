@@ -1,4 +1,115 @@
+import { Option, type Command } from "commander";
+import { check, CheckInputError } from "../check.js";
+import { FORMAT_NAMES, getFormat, type FormatName } from "../formats/index.js";
+import { renderCheckJson } from "../report/check-json.js";
+import { renderCheckText } from "../report/check-text.js";
+import { colorEnabled, createStyle } from "../report/style.js";
+import type { CheckOptions, CheckResult } from "../risk/index.js";
+import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
 import type { RegisterCommand } from "./commands.js";
+import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
-/** `headroom check` — not built yet; registers nothing. */
-export const register: RegisterCommand = () => {};
+/** Options shared by `check` and `explain`. */
+export interface JudgeFlags {
+  format?: string[];
+  plan?: string;
+  lossScale?: string;
+}
+
+/** Parse `--format a,b --format c` into format names (aliases such as fp16 accepted). */
+export function parseFormats(values: readonly string[] | undefined): FormatName[] | undefined {
+  if (values === undefined) return undefined;
+  const names: FormatName[] = [];
+  for (const value of values.flatMap((v) => v.split(","))) {
+    const text = value.trim();
+    if (text === "") continue;
+    try {
+      names.push(getFormat(text).name);
+    } catch {
+      throw new UserError(`--format: unknown format "${text}"; accepted: ${FORMAT_NAMES.join(", ")}`);
+    }
+  }
+  if (names.length === 0) throw new UserError(`--format: give at least one format; accepted: ${FORMAT_NAMES.join(", ")}`);
+  return names;
+}
+
+function parseLossScale(text: string | undefined): number | undefined {
+  if (text === undefined) return undefined;
+  const value = Number(text);
+  if (!(value > 0) || !Number.isFinite(value)) {
+    throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${text}"`);
+  }
+  return value;
+}
+
+/**
+ * Load a spec and check it with the command's flags. Spec problems are printed one per line
+ * (file:line:column: path: message) and end the command with exit code 2.
+ */
+export async function loadAndCheck(path: string, flags: JudgeFlags, extra: CheckOptions = {}): Promise<CheckResult | undefined> {
+  const options: CheckOptions = { ...extra };
+  const formats = parseFormats(flags.format);
+  if (formats !== undefined) options.formats = formats;
+  const lossScale = parseLossScale(flags.lossScale);
+  if (lossScale !== undefined) options.lossScale = lossScale;
+  if (flags.plan !== undefined) options.plan = flags.plan;
+
+  const loaded = await loadSpec(path);
+  if (!loaded.ok) {
+    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+    raiseExitCode(EXIT.inputError);
+    return undefined;
+  }
+  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  try {
+    return check(loaded.spec, options);
+  } catch (error) {
+    if (error instanceof CheckInputError) {
+      for (const issue of error.issues) {
+        const at = loaded.locate(issue.path);
+        process.stderr.write(formatSpecIssue({ ...at, path: formatSpecPath(issue.path), message: issue.message }) + "\n");
+      }
+      raiseExitCode(EXIT.inputError);
+      return undefined;
+    }
+    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    throw error;
+  }
+}
+
+/** The options `check` and `explain` share. */
+export function addJudgeOptions(command: Command): Command {
+  return command
+    .addOption(
+      new Option("--format <formats...>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`),
+    )
+    .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
+    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale instead of the plan's"));
+}
+
+/** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards. */
+export const register: RegisterCommand = (program) => {
+  const command = program
+    .command("check")
+    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
+    .description(
+      "Judge a network spec against its precision plan: a verdict per format (fits, at risk, fails) with the reasons, " +
+        "the tensors at risk and the operation hazards. Exit code 1 when a format fails, 2 for input errors. " +
+        "Predictions are estimates; confirm with a short run.",
+    )
+    .option("--all", "list every tensor and operation, not only those at risk")
+    .option("--json", "print the whole result as JSON (fields documented in README.md)");
+  addJudgeOptions(command).action(async (path: string, flags: JudgeFlags & { all?: boolean; json?: boolean }) => {
+    const result = await loadAndCheck(path, flags);
+    if (result === undefined) return;
+    const text = flags.json
+      ? renderCheckJson(result)
+      : renderCheckText(result, {
+          all: flags.all ?? false,
+          style: createStyle(colorEnabled(process.stdout, process.env)),
+          width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+        });
+    process.stdout.write(text);
+    if (result.verdict === "fails") raiseExitCode(EXIT.findings);
+  });
+};

@@ -41,16 +41,17 @@ export function strongestFactors(ledger: readonly LedgerEntry[], count = 3): { s
 export function renderExplainText(result: CheckResult, tensor: TensorCheck, options: ExplainTextOptions = {}): string {
   const style = options.style ?? PLAIN;
   const width = options.width ?? 100;
-  const backward = tensor.role.endsWith("gradient") || tensor.ledger.some((entry) => entry.layer === "loss");
+  const backward = tensor.role.endsWith("gradient") || (tensor.ledger ?? []).some((entry) => entry.layer === "loss");
   let out = style.role("heading", `headroom explain: ${tensor.id}`) + ` (${result.spec.name}, ${result.spec.source})\n`;
   out += `  ${tensor.role} of ${tensor.layer} (${tensor.family}), shape [${tensor.shape.join(", ")}], held in the plan's ${tensor.slot} (${result.plan[tensor.slot]}).\n`;
 
   out += "\n" + style.role("strong", `Ledger: from the ${backward ? "loss" : "input"} to this tensor, at the start of training`) + "\n";
-  if (tensor.ledger.length === 0) {
+  const ledger = tensor.ledger ?? [];
+  if (ledger.length === 0) {
     out += "  (the prediction has no factors for this tensor)\n";
   } else {
     let running = 0;
-    const rows = tensor.ledger.map((entry, index) => {
+    const rows = ledger.map((entry, index) => {
       running += entry.log2Factor;
       return [
         String(index + 1),
@@ -75,7 +76,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
       rows,
       { indent: "  ", styleHeader: (text) => style.role("strong", text) },
     );
-    const total = tensor.ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);
+    const total = ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);
     out += wrap(
       `The factors multiply to 2^${total.toFixed(2)} = ${formatValue(2 ** total)}; the predicted rms at the start is ` +
         `${formatValue(tensor.start.rms)} (2^${Math.log2(tensor.start.rms || Number.MIN_VALUE).toFixed(2)}) and at the end of the horizon ${formatValue(tensor.end.rms)}.`,
@@ -83,7 +84,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
       "  ",
       "  ",
     );
-    const { shrink, grow } = strongestFactors(tensor.ledger);
+    const { shrink, grow } = strongestFactors(ledger);
     if (shrink.length > 0) {
       out += wrap(`Shrinks it most: ${shrink.map((e) => `${e.layer} (${signed(e.log2Factor)})`).join(", ")}.`, width, "  ", "  ");
     }

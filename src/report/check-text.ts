@@ -76,7 +76,7 @@ function pair(start: number, end: number): string {
   return `${formatValue(start, 2)}→${formatValue(end, 2)}`;
 }
 
-/** The rows of the tensor table: each tensor in each format that holds it. */
+/** The rows of the tensor table: each tensor in each format that holds it; with `all` false, only those at risk, failing first. */
 export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorCheck; risk: TensorFormatRisk }[] {
   const rows: { tensor: TensorCheck; risk: TensorFormatRisk }[] = [];
   for (const tensor of result.tensors) {
@@ -85,8 +85,13 @@ export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorC
       if (all || risk.verdict !== "fits") rows.push({ tensor, risk });
     }
   }
-  return rows;
+  if (all) return rows;
+  // stable: failing tensors first, each group in the check's order (forward, then backward)
+  return [...rows.filter((row) => row.risk.verdict === "fails"), ...rows.filter((row) => row.risk.verdict !== "fails")];
 }
+
+/** Rows shown without --all. */
+export const TENSOR_ROW_LIMIT = 30;
 
 /** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, overflow per step, verdict). */
 export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorFormatRisk }[], style: Style = PLAIN): string {
@@ -182,16 +187,29 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   const judgedCount = result.tensors.reduce((n, t) => n + t.risks.filter((r) => r.judged).length, 0);
   out += "\n" + style.role("strong", all ? "Tensors" : "Tensors at risk") + "\n";
   if (rows.length === 0) {
-    out += `  none of the ${result.tensors.length} tensors is at risk.\n`;
+    out += `  none of the ${judgedCount} tensors is at risk.\n`;
   } else {
-    out += renderTensorTable(rows, style);
-    if (!all) out += style.role("muted", `  ${rows.length} of ${judgedCount} shown; --all lists every tensor.`) + "\n";
+    const shown = all ? rows : rows.slice(0, TENSOR_ROW_LIMIT);
+    out += renderTensorTable(shown, style);
+    if (!all) {
+      const more = rows.length - shown.length;
+      out += style.role(
+        "muted",
+        `  ${rows.length} of ${judgedCount} at risk${more > 0 ? `, the first ${shown.length} shown (failing first)` : ""}; --all lists every tensor.`,
+      ) + "\n";
+    }
   }
   out += style.role(
     "muted",
-    "  rms and max are after the loss scale (start→end of the horizon); max is the level exceeded once in " +
-      `${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom in binades; flushed is the share of nonzero elements.`,
-  ).replace(/^/, "") + "\n";
+    wrap(
+      "rms and max are after the loss scale, at the start→end of the horizon; max is the level the largest element " +
+        `passes once in ${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom are in binades; ` +
+        "flushed is the share of nonzero elements that round to zero.",
+      width,
+      "  ",
+      "  ",
+    ).trimEnd(),
+  ) + "\n";
 
   const hazardText = renderHazards(result.hazards, all, width, style);
   const evaluationCount = result.hazards.reduce((n, h) => n + h.evaluations.length, 0);

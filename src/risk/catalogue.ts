@@ -155,4 +155,12 @@ export const FINDING_INFO = {
       "always; fails when at least one zero second moment is expected per step. Remedy: keep optimizer " +
       "states in binary32, or raise epsilon.",
   },
+  "second-moment-flushed": {
+    title: "Second moment flushed",
+    short: "flush Adam's second moment",
+    description:
+      "Adam stores (1 − β2)·g², which flushes to zero in the optimizer-state format for small gradients: below " +
+      "about 5.5e-3 in binary16 with β2 = 0.999. Those elements then take steps of m/ε instead of m/√v. At risk " +
+      "above 1% of the elements, fails above 10%. Remedy: keep optimizer states in binary32.",
+  },
 } as const satisfies Record<FindingKind, FindingInfo>;

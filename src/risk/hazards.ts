@@ -54,47 +54,33 @@ export function evaluateHazard(
   context: HazardContext,
   origin: HazardCheck["origin"] = "prediction",
 ): HazardCheck {
-  const drafts = draftsFor(site, context);
+  const start = draftsFor(site, context).map((draft) => graded(draft, "start"));
+  const end =
+    site.end === undefined
+      ? []
+      : draftsFor({ ...site, input: site.end.input, ...(site.end.output ? { output: site.end.output } : {}) }, context).map(
+          (draft) => graded(draft, "end"),
+        );
   const evaluations: HazardEvaluation[] = [];
   const findings: Finding[] = [];
-  for (const draft of drafts) {
-    let verdict: Verdict = draft.verdict ?? "fits";
-    let threshold = 0;
-    if (draft.grading !== null) {
-      if (draft.value > draft.grading.fails) {
-        verdict = "fails";
-        threshold = draft.grading.fails;
-      } else if (draft.value > draft.grading.atRisk) {
-        verdict = "at-risk";
-        threshold = draft.grading.atRisk;
-      } else {
-        verdict = "fits";
-      }
-    }
-    if (draft.capAtRisk && verdict === "fails") verdict = "at-risk";
-    const sentence = draft.sentence(verdict);
-    evaluations.push({
-      format: draft.format,
-      heldIn: draft.heldIn,
-      measure: draft.measure,
-      value: draft.value,
-      criticalLevel: draft.criticalLevel,
-      verdict,
-      sentence,
-    });
-    if (verdict !== "fits") {
+  start.forEach((first, index) => {
+    const second = end[index];
+    const worse = second !== undefined && isWorse(second, first) ? second : first;
+    evaluations.push(worse.evaluation);
+    if (worse.evaluation.verdict !== "fits") {
       findings.push({
-        kind: draft.kind,
-        severity: verdict,
-        format: draft.format,
+        kind: worse.kind,
+        severity: worse.evaluation.verdict as Finding["severity"],
+        format: worse.evaluation.format,
         subject: site.layer,
         source: "hazard",
-        value: draft.value,
-        threshold,
-        sentence,
+        value: worse.evaluation.value,
+        threshold: worse.threshold,
+        ...(site.end !== undefined ? { at: worse.evaluation.at } : {}),
+        sentence: worse.evaluation.sentence,
       });
     }
-  }
+  });
   const check: HazardCheck = {
     kind: site.kind,
     layer: site.layer,
@@ -108,6 +94,50 @@ export function evaluateHazard(
   };
   if (site.constant !== undefined) check.constant = site.constant;
   return check;
+}
+
+const VERDICT_RANK: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
+
+function isWorse(a: Graded, b: Graded): boolean {
+  const rank = VERDICT_RANK[a.evaluation.verdict] - VERDICT_RANK[b.evaluation.verdict];
+  return rank > 0 || (rank === 0 && a.evaluation.value > b.evaluation.value);
+}
+
+interface Graded {
+  evaluation: HazardEvaluation;
+  kind: FindingKind;
+  threshold: number;
+}
+
+function graded(draft: Draft, at: "start" | "end"): Graded {
+  let verdict: Verdict = draft.verdict ?? "fits";
+  let threshold = 0;
+  if (draft.grading !== null) {
+    if (draft.value > draft.grading.fails) {
+      verdict = "fails";
+      threshold = draft.grading.fails;
+    } else if (draft.value > draft.grading.atRisk) {
+      verdict = "at-risk";
+      threshold = draft.grading.atRisk;
+    } else {
+      verdict = "fits";
+    }
+  }
+  if (draft.capAtRisk && verdict === "fails") verdict = "at-risk";
+  return {
+    evaluation: {
+      format: draft.format,
+      heldIn: draft.heldIn,
+      measure: draft.measure,
+      value: draft.value,
+      criticalLevel: draft.criticalLevel,
+      verdict,
+      at,
+      sentence: draft.sentence(verdict),
+    },
+    kind: draft.kind,
+    threshold,
+  };
 }
 
 /** The worst verdict of a hazard check. */
@@ -303,60 +333,67 @@ function lossValue(site: HazardSite, context: HazardContext): Draft[] {
   });
 }
 
-// Summed gradients: coherent parts add linearly, so the sum over `terms` worker-and-step contributions can be
-// `terms` times a single one (the worst case). Averaging by dividing each worker's gradient before the sum
-// moves small values down by the worker count instead (DESIGN.md §5 item 9).
+// Gradients summed over `terms` worker-and-step contributions: the engine's predicted sum (`output`) when it
+// gives one, otherwise `terms` times one contribution (coherent parts add linearly: the worst case). When
+// gradients are averaged, an implementation that divides each worker's gradient by the worker count before
+// the sum moves small values down by that factor instead (DESIGN.md §5 item 9); that is judged as a risk only.
 function gradientSum(site: HazardSite, context: HazardContext): Draft[] {
   const limits = context.gradients;
   const t = context.thresholds;
   const terms = Math.max(1, site.terms);
-  const scaled = scaleProfile(site.input, context.lossScale);
-  const drafts: Draft[] = [];
-  const growth = context.workerGradients === "sum" ? terms : Math.max(1, terms / Math.max(1, context.workers));
-  const summed = scaleProfile(scaled, growth);
+  const summed = site.output !== undefined ? scaleProfile(site.output, context.lossScale) : scaleProfile(site.input, context.lossScale * terms);
   const overflow = probabilityAnyAbove(summed, limits.overflowLevel);
-  drafts.push({
-    format: limits.format,
-    heldIn: "gradients",
-    measure: "overflow-risk",
-    value: overflow,
-    criticalLevel: limits.overflowLevel / (growth * context.lossScale),
-    kind: "gradient-sum-overflow",
-    grading: overflowGrading(t),
-    sentence: (verdict) =>
-      `Summing ${plainNumber(growth)} gradient contributions of ${site.layer} in ${limits.format} overflows with ` +
-      `probability ${plainNumber(overflow)} per step (${verdictWord(verdict)}).`,
-  });
+  const drafts: Draft[] = [
+    {
+      format: limits.format,
+      heldIn: "gradients",
+      measure: "overflow-risk",
+      value: overflow,
+      criticalLevel: limits.overflowLevel / context.lossScale,
+      kind: "gradient-sum-overflow",
+      grading: overflowGrading(t),
+      sentence: (verdict) =>
+        `The sum of ${terms} gradient contributions of ${site.layer} (rms ${plainNumber(summed.rms)} after the loss ` +
+        `scale) overflows ${limits.format} with probability ${plainNumber(overflow)} per step (${verdictWord(verdict)}).`,
+    },
+  ];
   if (context.workerGradients === "average" && context.workers > 1) {
+    const scaled = scaleProfile(site.input, context.lossScale);
     const divided = scaleProfile(scaled, 1 / context.workers);
-    const lost = energyBelow(divided, limits.flushBound) - energyBelow(scaled, limits.flushBound);
+    const lost = Math.max(0, energyBelow(divided, limits.flushBound) - energyBelow(scaled, limits.flushBound));
     drafts.push({
       format: limits.format,
       heldIn: "gradients",
       measure: "flushed-energy",
-      value: Math.max(0, lost),
+      value: lost,
       criticalLevel: limits.flushBound * context.workers,
       kind: "gradient-sum-flush",
       grading: { atRisk: t.energyAtRisk, fails: t.energyFails },
+      capAtRisk: true,
       sentence: (verdict) =>
-        `Dividing the gradients of ${site.layer} by ${context.workers} workers before the sum flushes a further ` +
-        `${percent(Math.max(0, lost))} of their squared norm in ${limits.format} (${verdictWord(verdict)}).`,
+        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, a further ` +
+        `${percent(lost)} of their squared norm flushes in ${limits.format} (${verdictWord(verdict)}).`,
     });
   }
   return drafts;
 }
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
-// is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero. The input is
-// the gradient profile (without the loss scale, which is removed before the optimizer).
+// is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero. The stored second
+// moment itself flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with β2 = 0.999 (DESIGN.md §5
+// item 5). The input is the gradient profile, without the loss scale (removed before the optimizer).
 function optimizerConstant(site: HazardSite, context: HazardContext): Draft[] {
   const limits = context.optimizerStates;
+  const t = context.thresholds;
+  const gradient = site.input;
+  // (1 − β2)·g² ≤ flush bound  ⇔  |g| ≤ √(flush bound / (1 − β2))
+  const gradientBound = Math.sqrt(limits.flushBound / Math.max(1e-300, 1 - context.beta2));
+  const flushedShare = gradient.rms > 0 ? fractionBelow(gradient, gradientBound) : 0;
+  const drafts: Draft[] = [];
   const epsilon = site.constant;
-  if (epsilon === undefined) return [];
-  const flushes = epsilon <= limits.flushBound;
-  if (!flushes) {
-    return [
-      {
+  if (epsilon !== undefined) {
+    if (epsilon > limits.flushBound) {
+      drafts.push({
         format: limits.format,
         heldIn: "optimizerStates",
         measure: "zero-second-moments",
@@ -366,29 +403,37 @@ function optimizerConstant(site: HazardSite, context: HazardContext): Draft[] {
         grading: null,
         verdict: "fits",
         sentence: () => `The optimizer epsilon ${plainNumber(epsilon)} stays nonzero in ${limits.format}.`,
-      },
-    ];
+      });
+    } else {
+      const zeros = gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedShare;
+      drafts.push({
+        format: limits.format,
+        heldIn: "optimizerStates",
+        measure: "zero-second-moments",
+        value: zeros,
+        criticalLevel: limits.flushBound,
+        kind: "optimizer-epsilon-flushed",
+        grading: null,
+        verdict: zeros >= 1 ? "fails" : "at-risk",
+        sentence: () =>
+          `The optimizer epsilon ${plainNumber(epsilon)} rounds to zero in ${limits.format}` +
+          (zeros >= 1
+            ? `, and about ${plainNumber(zeros)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
+            : `; an update divides by zero wherever a second moment is zero.`),
+      });
+    }
   }
-  const gradient = site.input;
-  const n = gradient.elements;
-  // (1 − β2)·g² ≤ flush bound  ⇔  |g| ≤ √(flush bound / (1 − β2))
-  const gradientBound = Math.sqrt(limits.flushBound / Math.max(1e-300, 1 - context.beta2));
-  const zeros = n * gradient.zeroFraction + nonzeroElements(gradient) * fractionBelow(gradient, gradientBound);
-  return [
-    {
-      format: limits.format,
-      heldIn: "optimizerStates",
-      measure: "zero-second-moments",
-      value: zeros,
-      criticalLevel: gradientBound,
-      kind: "optimizer-epsilon-flushed",
-      grading: null,
-      verdict: zeros >= 1 ? "fails" : "at-risk",
-      sentence: () =>
-        `The optimizer epsilon ${plainNumber(epsilon)} rounds to zero in ${limits.format}` +
-        (zeros >= 1
-          ? `, and about ${plainNumber(zeros)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
-          : `; an update divides by zero wherever a second moment is zero.`),
-    },
-  ];
+  drafts.push({
+    format: limits.format,
+    heldIn: "optimizerStates",
+    measure: "flushed-share",
+    value: flushedShare,
+    criticalLevel: gradientBound,
+    kind: "second-moment-flushed",
+    grading: { atRisk: t.flushedAtRisk, fails: t.flushedFails },
+    sentence: (verdict) =>
+      `The second moment (1 − β2)·g² of ${site.layer} flushes in ${limits.format} for gradients below ` +
+      `${plainNumber(gradientBound)}: ${percent(flushedShare)} of its elements (${verdictWord(verdict)}).`,
+  });
+  return drafts;
 }

@@ -32,6 +32,10 @@ export interface CheckOptions {
   plan?: string;
   /** thresholds to use instead of the defaults (DEFAULT_THRESHOLDS) */
   thresholds?: Partial<RiskThresholds>;
+  /** keep each tensor's ledger in the result (what `explain` shows); off by default, as ledgers are long */
+  ledger?: boolean;
+  /** also report each tensor's numbers in the judged formats that do not hold it (off by default) */
+  everyFormat?: boolean;
 }
 
 /** The plan entries a format can hold. */
@@ -67,10 +71,11 @@ export interface TensorCheck {
   /** predicted profiles, before the loss scale */
   start: MagnitudeProfile;
   end: MagnitudeProfile;
-  ledger: LedgerEntry[];
+  /** the factors from the seed to the tensor; present when the check was asked for ledgers */
+  ledger?: LedgerEntry[];
   /** rms, predicted max and low magnitude after the loss scale (`statistics.factor`) */
   statistics: TensorStatistics;
-  /** one entry per judged format, in the order of `formats` */
+  /** one entry per judged format that holds the tensor (every judged format with `everyFormat`), in the order of `formats` */
   risks: TensorFormatRisk[];
   /** the worst verdict over the formats that hold it */
   verdict: Verdict;
@@ -188,14 +193,17 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
 
   const tensors: TensorCheck[] = prediction.tensors.map((tensor) => {
     const statistics = tensorStatistics(tensor, lossScale.value, thresholds);
-    const risks = formats.map((format) => {
+    const risks = formats.flatMap((format) => {
       const evaluated = plans.get(format) ?? plan;
       const judged = evaluated[tensor.slot] === format;
-      return tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {
-        judged,
-        perTensorScaling: FORMATS[format].bits === 8 && evaluated.scaling !== "none",
-        thresholds,
-      });
+      if (!judged && !options.everyFormat) return [];
+      return [
+        tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {
+          judged,
+          perTensorScaling: FORMATS[format].bits === 8 && evaluated.scaling !== "none",
+          thresholds,
+        }),
+      ];
     });
     return {
       id: tensor.id,
@@ -208,7 +216,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
       source: tensor.source,
       start: tensor.start,
       end: tensor.end,
-      ledger: tensor.ledger,
+      ...(options.ledger ? { ledger: tensor.ledger } : {}),
       statistics,
       risks,
       verdict: worstVerdict(risks.flatMap((risk) => risk.findings)),

@@ -113,8 +113,24 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
-/** The element law of a profile's nonzero part. */
+/**
+ * The element law of a profile's nonzero part. A `bound` given with any shape caps the magnitudes there (the
+ * engine marks probabilities and softmax gradients with the largest value they can take).
+ */
 export function elementLaw(profile: MagnitudeProfile): ElementLaw {
+  const law = baseLaw(profile);
+  const bound = profile.bound;
+  if (profile.shape === "bounded" || bound === undefined || !(bound > 0)) return law;
+  return {
+    below: (r, t) => (t >= bound ? 1 : law.below(r, t)),
+    above: (r, t) => (t > bound ? 0 : law.above(r, t)),
+    energyBelow: (r, t) => (t >= bound ? 1 : law.energyBelow(r, t)),
+    kurtosis: law.kurtosis,
+    positiveShare: law.positiveShare,
+  };
+}
+
+function baseLaw(profile: MagnitudeProfile): ElementLaw {
   switch (profile.shape) {
     case "gaussian":
       return gaussian;
@@ -155,18 +171,24 @@ const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
 })();
 
 /**
- * E over draws of f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width spread, Hanin & Nica 2019):
- * f(rms) itself when the scale does not spread.
+ * E over draws of a probability or share f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width
+ * spread, Hanin & Nica 2019): f(rms) itself when the scale does not spread. Clamped to [0, 1] against the
+ * rounding of the quadrature sum.
  */
 export function overDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
   if (!(log2Spread > 0)) return f(rms);
   const { z, w } = DRAW_NODES;
-  let sum = 0;
-  for (let i = 0; i < z.length; i++) {
-    const weight = w[i] as number;
-    sum += weight * f(rms * 2 ** (log2Spread * (z[i] as number)));
+  const last = z.length - 1;
+  // every f here is monotone in r, so equal values at the two extreme draws mean a constant integrand
+  // (an overflow far out of reach, a share that is 0 or 1 for every draw): one evaluation pair instead of all
+  const low = f(rms * 2 ** (log2Spread * (z[0] as number)));
+  const high = f(rms * 2 ** (log2Spread * (z[last] as number)));
+  if (low === high) return Math.min(1, Math.max(0, low));
+  let sum = (w[0] as number) * low + (w[last] as number) * high;
+  for (let i = 1; i < last; i++) {
+    sum += (w[i] as number) * f(rms * 2 ** (log2Spread * (z[i] as number)));
   }
-  return sum;
+  return Math.min(1, Math.max(0, sum));
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a
@@ -217,12 +239,23 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
   const { w } = DRAW_NODES;
   const half = (w.length - 1) / 2;
   const step = spread * DRAW_STEP;
-  const memo = new Map<number, number>();
+  // lattice values memoised in a window around the start, grown when the search leaves it
+  let base = Math.round(direct / step) - 4 * half;
+  let memo = new Float64Array(8 * half + 1).fill(NaN);
   const at = (m: number): number => {
-    let value = memo.get(m);
-    if (value === undefined) {
+    let index = m - base;
+    if (index < 0 || index >= memo.length) {
+      const grown = new Float64Array(memo.length * 2 + Math.abs(index)).fill(NaN);
+      const shift = index < 0 ? grown.length - memo.length : 0;
+      grown.set(memo, shift);
+      base -= shift;
+      memo = grown;
+      index = m - base;
+    }
+    let value = memo[index] as number;
+    if (Number.isNaN(value)) {
       value = g(m * step);
-      memo.set(m, value);
+      memo[index] = value;
     }
     return value;
   };

@@ -116,16 +116,19 @@ export function profileStatistics(
       low: profile.rms * 2 ** (-spread * normalUpperQuantile(levels.lowQuantile)),
     };
   }
-  const law = elementLaw(profile);
   const n = nonzeroElements(profile);
-  // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); for a
-  // bounded shape use the Gaussian law and cap the level at the bound
-  const gaussianLike = profile.shape === "bounded" ? elementLaw({ ...profile, shape: "gaussian" }) : law;
+  // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
+  // breaks the scale family, so solve without it and cap the levels at the bound afterwards
+  const { bound, ...unbounded } = profile;
+  const gaussianLike = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
   const maxLevel = mixtureCrossing((v) => anyOf(gaussianLike.above(1, 2 ** v), n), profile.log2Spread, levels.maxQuantile, true);
   const lowLevel = mixtureCrossing((v) => gaussianLike.below(1, 2 ** v), profile.log2Spread, levels.lowQuantile, false);
   let max = profile.rms * 2 ** maxLevel;
-  if (profile.shape === "bounded" && profile.bound !== undefined && profile.bound > 0) max = Math.min(max, profile.bound);
-  const low = profile.rms * 2 ** lowLevel;
+  let low = profile.rms * 2 ** lowLevel;
+  if (bound !== undefined && bound > 0) {
+    max = Math.min(max, bound);
+    low = Math.min(low, bound);
+  }
   return { rms: profile.rms, max, low };
 }
 

@@ -42,6 +42,7 @@ export const FINDING_KINDS = [
   "gradient-sum-overflow",
   "gradient-sum-flush",
   "optimizer-epsilon-flushed",
+  "second-moment-flushed",
 ] as const;
 export type FindingKind = (typeof FINDING_KINDS)[number];
 
@@ -101,12 +102,14 @@ export interface HazardEvaluation {
   /** which plan entry holds the operation's result */
   heldIn: "activations" | "gradients" | "optimizerStates" | "accumulate";
   /** what `value` measures */
-  measure: "overflow-risk" | "relative-error" | "flushed-energy" | "zero-second-moments";
+  measure: "overflow-risk" | "relative-error" | "flushed-energy" | "flushed-share" | "zero-second-moments";
   /** the number judged */
   value: number;
   /** the critical input level, in the input's units (e.g. ln 65520 for exp in binary16, √(max/N) for a norm) */
   criticalLevel: number | null;
   verdict: Verdict;
+  /** whether the worse judgement is at the start of training or at the end of the horizon */
+  at: "start" | "end";
   /** one sentence in plain words */
   sentence: string;
 }

@@ -48,7 +48,7 @@ export function judge(findings: readonly Finding[]): Judgement {
     const others = group.subjects.size - 1;
     if (others === 0) return group.worst.sentence;
     const noun = group.worst.source === "tensor" ? (others === 1 ? "tensor" : "tensors") : others === 1 ? "operation" : "operations";
-    return `${group.worst.sentence.replace(/\.$/, "")}; ${others} other ${noun} ${FINDING_INFO[kind].short} too.`;
+    return `${group.worst.sentence.replace(/\.$/, "")}; ${others} other ${noun} likewise (${FINDING_INFO[kind].title.toLowerCase()}).`;
   });
   return { verdict: worstVerdict(findings), reasons };
 }

@@ -9,7 +9,7 @@ import {
   profileStatistics,
   rangeLimits,
 } from "../../src/risk/index.js";
-import { normalQuantile } from "../../src/numeric/index.js";
+import { normalUpperQuantile } from "../../src/risk/_math.js";
 import { FORMATS } from "../../src/formats/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_SATURATING } from "./limits.js";
 
@@ -46,7 +46,7 @@ describe("flushed and subnormal fractions of a Gaussian tensor in binary16 (SCIE
     let energy = 0;
     let flushedEnergy = 0;
     for (let i = 0; i < count; i++) {
-      const x = sigma * normalQuantile((i + 0.5) / count);
+      const x = sigma * -normalUpperQuantile((i + 0.5) / count);
       const rounded = f16round(x);
       energy += x * x;
       if (rounded === 0) {
@@ -86,6 +86,13 @@ describe("element shapes", () => {
     const spread = profile({ shape: "constant", rms: 2 ** 10, log2Spread: 0.5 });
     // reaching 2^11 needs a draw 1 binade up, i.e. z ≥ 2: P(|Z| > 2)/2
     expect(relative(probabilityAnyAbove(spread, 2 ** 11), 0.04550026 / 2)).toBeLessThan(1e-6);
+  });
+
+  it("a bound caps any shape: nothing above it, and the predicted max stops there", () => {
+    const capped = profile({ shape: "log-normal", rms: 1e-3, elementLog2Spread: 2, bound: 2 ** -8, elements: 1e4 });
+    expect(probabilityAnyAbove(capped, 2 ** -7)).toBe(0);
+    expect(fractionBelow(capped, 2 ** -8)).toBe(1);
+    expect(profileStatistics(capped).max).toBe(2 ** -8);
   });
 
   it("exact zeros (a ReLU's half) are neither flushed nor counted as elements that can overflow", () => {

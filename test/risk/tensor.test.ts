@@ -107,7 +107,7 @@ describe("judge", () => {
       { ...base, kind: "overflow", severity: "fails", subject: "c", value: 0.9, sentence: "C overflows." },
     ]);
     expect(verdict.verdict).toBe("fails");
-    expect(verdict.reasons).toEqual(["C overflows; 1 other tensor overflow too.", "A is subnormal."]);
+    expect(verdict.reasons).toEqual(["C overflows; 1 other tensor likewise (overflow).", "A is subnormal."]);
   });
 });
 

@@ -1,0 +1,84 @@
+import { readFileSync } from "node:fs";
+import { describe, expect, it } from "vitest";
+import { check } from "../../src/check.js";
+import { parseSpec } from "../../src/spec/index.js";
+import type { NetworkSpec } from "../../src/spec/types.js";
+import type { CheckResult } from "../../src/risk/index.js";
+
+const HAZARDS = "test/fixtures/specs/hazards";
+
+function load(path: string, edit: (text: string) => string = (t) => t): NetworkSpec {
+  const parsed = parseSpec(edit(readFileSync(path, "utf8")), path);
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  return parsed.spec;
+}
+
+function kinds(result: CheckResult, format: string): string[] {
+  return result.formats.find((f) => f.format === format)?.findings.map((f) => f.kind) ?? [];
+}
+
+describe("purpose-built hazards, end to end", () => {
+  it("a sum of squares over 4096 features with input rms 4.2 overflows binary16 (√(65504/4096) = 4.0; DESIGN.md §5 item 7)", () => {
+    const result = check(load(`${HAZARDS}/norm-sum-of-squares.yaml`));
+    const norm = result.hazards.find((h) => h.kind === "norm-sum-of-squares");
+    expect(norm?.evaluations[0]?.criticalLevel).toBeCloseTo(Math.sqrt(65520 / 4096), 9);
+    expect(kinds(result, "binary16")).toContain("norm-sum-overflow");
+    expect(result.formats[0]?.verdict).toBe("fails");
+  });
+
+  it("the same norm with input rms 3.5 does not overflow", () => {
+    const result = check(load(`${HAZARDS}/norm-sum-of-squares.yaml`, (t) => t.replace("scale: 4.2", "scale: 3.5")));
+    expect(kinds(result, "binary16")).not.toContain("norm-sum-overflow");
+  });
+
+  it("unscaled logits of rms 8 overflow exp in binary16 without max subtraction (ln 65520 = 11.09; SCIENCE.md §4)", () => {
+    const result = check(load(`${HAZARDS}/softmax-without-max.yaml`));
+    const softmax = result.hazards.find((h) => h.kind === "softmax-exp");
+    expect(softmax?.guarded).toBe(false);
+    expect(softmax?.evaluations[0]?.criticalLevel).toBeCloseTo(11.090110719, 8);
+    expect(kinds(result, "binary16")).toContain("softmax-exp-overflow");
+    expect(result.formats[0]?.verdict).toBe("fails");
+  });
+
+  it("subtracting the row maximum removes the exp overflow", () => {
+    const result = check(load(`${HAZARDS}/softmax-without-max.yaml`, (t) => t.replace("subtract-max: false", "subtract-max: true")));
+    expect(kinds(result, "binary16")).not.toContain("softmax-exp-overflow");
+  });
+
+  it("Adam's epsilon 1e-8 held in binary16 is flagged (rounds to 0: SCIENCE.md §3.3)", () => {
+    const result = check(load(`${HAZARDS}/adam-epsilon-binary16.yaml`));
+    expect(kinds(result, "binary16")).toContain("optimizer-epsilon-flushed");
+    const inBinary32 = check(load(`${HAZARDS}/adam-epsilon-binary16.yaml`, (t) => t.replace("optimizer-states: binary16", "optimizer-states: binary32")));
+    expect(inBinary32.formats.flatMap((f) => f.findings.map((x) => x.kind))).not.toContain("optimizer-epsilon-flushed");
+  });
+
+  it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {
+    const result = check(load(`${HAZARDS}/loss-sum-reduction.yaml`));
+    expect(kinds(result, "binary16")).toContain("loss-value-overflow");
+  });
+});
+
+describe("linear chains of 100 layers (1.5^100 = 4.0656e17, 0.8^100 = 2.037e-10; SCIENCE.md §4)", () => {
+  it("a per-layer factor of 1.5 predicts growth that overflows binary16 but not bfloat16", () => {
+    const spec = load(`${HAZARDS}/linear-chain-grow.yaml`);
+    const half = check(spec);
+    const brain = check(spec, { plan: "all-bfloat16" });
+    // the gradient reaching the first layer has grown by 1.5 per layer over 99 layers
+    const last = half.tensors.filter((t) => t.role === "activation-gradient").map((t) => t.start.rms);
+    expect(Math.max(...last) / Math.min(...last)).toBeGreaterThan(1.5 ** 95);
+    expect(kinds(half, "binary16")).toContain("overflow");
+    expect(half.formats[0]?.verdict).toBe("fails");
+    expect(kinds(brain, "bfloat16")).not.toContain("overflow");
+  });
+
+  it("a per-layer factor of 0.8 predicts gradients that flush in binary16 but not in bfloat16", () => {
+    const spec = load(`${HAZARDS}/linear-chain-shrink.yaml`);
+    const half = check(spec);
+    const brain = check(spec, { plan: "all-bfloat16" });
+    const gradients = half.tensors.filter((t) => t.role === "activation-gradient").map((t) => t.start.rms);
+    expect(Math.max(...gradients) / Math.min(...gradients)).toBeGreaterThan(0.8 ** -95);
+    expect(kinds(half, "binary16")).toEqual(expect.arrayContaining(["flushed-values"]));
+    expect(kinds(brain, "bfloat16")).not.toContain("flushed-values");
+    expect(kinds(brain, "bfloat16")).not.toContain("gradient-energy-flushed");
+  });
+});

@@ -1,0 +1,103 @@
+import { readdirSync, readFileSync } from "node:fs";
+import { describe, expect, it } from "vitest";
+import { runCli } from "../helpers/run.js";
+
+const SPECS = readdirSync("specs").filter((name) => /\.ya?ml$/.test(name)).sort();
+const STACK = /\n\s+at /;
+
+describe("headroom check (the built binary) on every example spec", () => {
+  for (const file of SPECS) {
+    const name = file.replace(/\.ya?ml$/, "");
+    it(`${file}: stdout is the golden text, stderr is empty, exit code follows the verdict`, () => {
+      const run = runCli(["check", `specs/${file}`]);
+      const golden = JSON.parse(readFileSync(`test/golden/check/${name}.json`, "utf8")) as { verdict: string };
+      expect(run.stderr).toBe("");
+      expect(run.stdout).toBe(readFileSync(`test/golden/check/${name}.txt`, "utf8"));
+      // exit code 1 when the verdict is "fails", 0 otherwise (README.md, "Exit codes")
+      expect(run.status).toBe(golden.verdict === "fails" ? 1 : 0);
+    });
+
+  }
+
+  // the JSON path for two examples (the in-process golden test covers every example's JSON)
+  for (const file of SPECS.slice(0, 2)) {
+    const name = file.replace(/\.ya?ml$/, "");
+    it(`${file} --json prints the golden result`, () => {
+      const run = runCli(["check", "--json", `specs/${file}`]);
+      expect(run.stderr).toBe("");
+      expect(run.stdout).toBe(readFileSync(`test/golden/check/${name}.json`, "utf8"));
+    });
+  }
+});
+
+describe("headroom check options", () => {
+  const spec = "test/fixtures/specs/hazards/linear-chain-grow.yaml";
+
+  it("--format judges other formats than the plan's, and aliases are accepted", () => {
+    const run = runCli(["check", "--json", "--format", "bf16,binary16", spec]);
+    const result = JSON.parse(run.stdout) as { formats: { format: string; planned: boolean; verdict: string }[] };
+    expect(result.formats.map((f) => [f.format, f.planned])).toEqual([
+      ["bfloat16", false],
+      ["binary16", true],
+    ]);
+    expect(result.formats[0]?.verdict).not.toBe("fails");
+    expect(result.formats[1]?.verdict).toBe("fails");
+    expect(run.status).toBe(1);
+  });
+
+  it("--all lists every tensor; the default lists only those at risk", () => {
+    const all = runCli(["check", "--all", spec]).stdout.split("\n").length;
+    const some = runCli(["check", "--format", "bfloat16", spec]).stdout;
+    expect(all).toBeGreaterThan(400);
+    expect(some).toMatch(/--all lists every tensor|none of the/);
+  });
+
+  it("every answer carries the caution and suggests a short confirmation run", () => {
+    const run = runCli(["check", spec]);
+    expect(run.stdout).toMatch(/These are estimates/);
+    expect(run.stdout).toMatch(/short run of a few hundred steps/);
+  });
+});
+
+describe("headroom check input errors: exit code 2, one line each, no stack trace", () => {
+  it("a missing file", () => {
+    const run = runCli(["check", "specs/no-such-spec.yaml"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toBe("specs/no-such-spec.yaml: no such file\n");
+    expect(run.stdout).toBe("");
+  });
+
+  it("an invalid spec prints file:line:column: path: message", () => {
+    const bad = runCli(["check", "test/fixtures/specs/hazards/bad-width.yaml"]);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr).toMatch(/^test\/fixtures\/specs\/hazards\/bad-width\.yaml:\d+:\d+: layers\[0\]\.width: .+\n$/);
+    expect(bad.stderr).not.toMatch(STACK);
+  });
+
+  it("a file that is not a spec", () => {
+    const run = runCli(["check", "README.md"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toBe('README.md: unsupported extension ".md": a spec is a .yaml, .yml or .json file\n');
+  });
+
+  it("an unknown format names the accepted ones", () => {
+    const run = runCli(["check", "--format", "fp12", "specs/deep-relu-he.yaml"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toBe(
+      'headroom: --format: unknown format "fp12"; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3\n',
+    );
+  });
+
+  it("an unknown plan names the spec's plans", () => {
+    const run = runCli(["check", "--plan", "nope", "specs/deep-relu-he.yaml"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toMatch(/no plan named "nope" in the spec; its plans: /);
+    expect(run.stderr).not.toMatch(STACK);
+  });
+
+  it("a bad loss scale", () => {
+    const run = runCli(["check", "--loss-scale", "-4", "specs/deep-relu-he.yaml"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toMatch(/--loss-scale: expected a positive number/);
+  });
+});
