@@ -81,7 +81,9 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
 export function addJudgeOptions(command: Command): Command {
   return command
     .addOption(
-      new Option("--format <formats...>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`),
+      new Option("--format <formats>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`).argParser(
+        (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
+      ),
     )
     .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
     .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale instead of the plan's"));
