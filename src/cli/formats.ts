@@ -1,4 +1,176 @@
+import { FORMAT_NAMES, FORMATS, getFormat, type Format } from "../formats/index.js";
+import { renderTable, type TableColumn } from "../report/table.js";
 import type { RegisterCommand } from "./commands.js";
+import { UserError } from "./errors.js";
 
-/** `headroom formats` — not built yet; registers nothing. */
-export const register: RegisterCommand = () => {};
+/** One format's limits as plain JSON: every number exact; Infinity is written as null. */
+export interface FormatJson {
+  name: string;
+  bits: number;
+  bytes: number;
+  exponentBits: number;
+  fractionBits: number;
+  bias: number;
+  precision: number;
+  emin: number;
+  emax: number;
+  maxFinite: number;
+  overflowThreshold: number | null;
+  overflowsAtThreshold: boolean;
+  minNormal: number;
+  maxSubnormal: number;
+  minSubnormal: number;
+  flushBound: number;
+  epsilon: number;
+  unitRoundoff: number;
+  dynamicRangeBinades: number;
+  normalRangeBinades: number;
+  hasInfinity: boolean;
+  specials: string;
+  computeOnly: boolean;
+  defaultOverflow: string;
+  subnormalsOftenFlushed: boolean;
+  source: string;
+}
+
+/** A format record as JSON-safe data. */
+export function formatJson(f: Format): FormatJson {
+  return {
+    name: f.name,
+    bits: f.bits,
+    bytes: f.bytes,
+    exponentBits: f.exponentBits,
+    fractionBits: f.fractionBits,
+    bias: f.bias,
+    precision: f.precision,
+    emin: f.emin,
+    emax: f.emax,
+    maxFinite: f.maxFinite,
+    overflowThreshold: Number.isFinite(f.overflowThreshold) ? f.overflowThreshold : null,
+    overflowsAtThreshold: f.overflowsAtThreshold,
+    minNormal: f.minNormal,
+    maxSubnormal: f.maxSubnormal,
+    minSubnormal: f.minSubnormal,
+    flushBound: f.flushBound,
+    epsilon: f.epsilon,
+    unitRoundoff: f.unitRoundoff,
+    dynamicRangeBinades: f.dynamicRangeBinades,
+    normalRangeBinades: f.normalRangeBinades,
+    hasInfinity: f.hasInfinity,
+    specials: f.specials,
+    computeOnly: f.computeOnly,
+    defaultOverflow: f.defaultOverflow,
+    subnormalsOftenFlushed: f.subnormalsOftenFlushed,
+    source: f.source,
+  };
+}
+
+/** `digits` significant digits, exponent form outside [1e-4, 1e6); exact integers in range stay whole. */
+function short(value: number, digits = 5): string {
+  if (!Number.isFinite(value)) return value > 0 ? "none" : "-";
+  const abs = Math.abs(value);
+  if (abs >= 1e-4 && abs < 1e6) return Number.isInteger(value) ? String(value) : String(Number(value.toPrecision(digits)));
+  const [mantissa = "", exponent = ""] = value.toExponential(digits - 1).split("e");
+  return `${mantissa.replace(/\.?0+$/, "")}e${exponent.replace("+", "")}`;
+}
+
+/** The largest finite value and the overflow threshold, with enough digits to tell them apart (binary32 needs 9). */
+function limitPair(f: Format): [string, string] {
+  if (!Number.isFinite(f.overflowThreshold)) return [short(f.maxFinite), "none"];
+  let digits = 5;
+  while (digits < 17 && short(f.maxFinite, digits) === short(f.overflowThreshold, digits)) digits++;
+  const sign = f.overflowsAtThreshold ? "≥ " : "> ";
+  return [short(f.maxFinite, digits), sign + short(f.overflowThreshold, digits)];
+}
+
+/** A power of two with its value: 2^-14 = 6.104e-5. */
+function power(value: number): string {
+  const [mantissa = "", exponent = ""] = value.toExponential(3).split("e");
+  const decimal = value >= 1e-4 && value < 1e6 ? String(Number(value.toPrecision(4))) : `${mantissa.replace(/\.?0+$/, "")}e${exponent.replace("+", "")}`;
+  return `2^${Math.log2(value)} = ${decimal}`;
+}
+
+const LAYOUT_COLUMNS: TableColumn[] = [
+  { title: "format" },
+  { title: "sign/exp/frac", align: "right" },
+  { title: "bias", align: "right" },
+  { title: "p", align: "right" },
+  { title: "emin", align: "right" },
+  { title: "emax", align: "right" },
+  { title: "bytes", align: "right" },
+  { title: "infinity" },
+  { title: "on overflow" },
+  { title: "use" },
+];
+
+const LIMIT_COLUMNS: TableColumn[] = [
+  { title: "format" },
+  { title: "largest finite", align: "right" },
+  { title: "overflows at", align: "right" },
+  { title: "smallest normal", align: "right" },
+  { title: "smallest subnormal", align: "right" },
+  { title: "epsilon", align: "right" },
+  { title: "unit roundoff", align: "right" },
+  { title: "binades", align: "right" },
+];
+
+/** Render the formats tables (layout, then limits), with notes that explain the columns. */
+export function renderFormatsTable(formats: readonly Format[]): string {
+  const layout = formats.map((f) => [
+    f.name,
+    `1/${f.exponentBits}/${f.fractionBits}`,
+    f.bias,
+    f.precision,
+    f.emin,
+    f.emax,
+    f.bytes,
+    f.hasInfinity ? "yes" : "no",
+    f.defaultOverflow === "saturate" ? "saturates" : f.hasInfinity ? "infinity" : "NaN",
+    f.computeOnly ? "compute only" : "storage",
+  ]);
+  const limits = formats.map((f) => [
+    f.name,
+    ...limitPair(f),
+    power(f.minNormal),
+    power(f.minSubnormal),
+    `2^${Math.log2(f.epsilon)}`,
+    `2^${Math.log2(f.unitRoundoff)}`,
+    f.dynamicRangeBinades.toFixed(1),
+  ]);
+  const notes = [
+    "overflows at: magnitudes past this round to infinity (or NaN, or saturate) under round-to-nearest-even;",
+    "  ≥ means the tie itself overflows. p: significand bits with the hidden bit.",
+    "epsilon = 2^(1-p), the gap above 1; unit roundoff = 2^-p, the largest relative rounding error of a normal value.",
+    "binades: log2(largest finite / smallest subnormal), the dynamic range in powers of two.",
+    "on overflow: the default; e4m3 (no infinity) saturates to ±448, or gives NaN with --overflow infinity-or-nan.",
+  ];
+  if (formats.some((f) => f.computeOnly)) {
+    notes.push("tf32 is a compute precision applied to binary32 inputs of matrix products (held in 4 bytes), not a storage format.");
+  }
+  if (formats.some((f) => f.subnormalsOftenFlushed)) {
+    notes.push("bfloat16 subnormals are often flushed to zero by hardware; then its range ends at the smallest normal.");
+  }
+  return renderTable(LAYOUT_COLUMNS, layout) + "\n" + renderTable(LIMIT_COLUMNS, limits) + "\n" + notes.join("\n") + "\n";
+}
+
+/** `headroom formats`: a table of the number formats and their limits (or JSON). */
+export const register: RegisterCommand = (program) => {
+  program
+    .command("formats")
+    .description("Print the number formats headroom knows and their limits: largest finite, overflow threshold, smallest normal and subnormal, epsilon, range")
+    .argument("[names...]", `formats to show (default all): ${FORMAT_NAMES.join(", ")}`)
+    .option("--json", "print a JSON array of the formats, every number exact (infinity as null)")
+    .action((names: string[], options: { json?: boolean }) => {
+      const formats = names.length === 0 ? FORMAT_NAMES.map((name) => FORMATS[name]) : names.map(lookUp);
+      if (options.json) process.stdout.write(JSON.stringify(formats.map(formatJson), null, 2) + "\n");
+      else process.stdout.write(renderFormatsTable(formats));
+    });
+};
+
+function lookUp(name: string): Format {
+  try {
+    return getFormat(name);
+  } catch (error) {
+    throw new UserError(error instanceof Error ? error.message : String(error));
+  }
+}

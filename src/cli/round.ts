@@ -1,4 +1,239 @@
+import { createInterface } from "node:readline";
+import { Option } from "commander";
+import {
+  FORMAT_NAMES,
+  OVERFLOW_MODES,
+  ROUNDING_MODES,
+  describeRounding,
+  getFormat,
+  type Format,
+  type OverflowMode,
+  type RoundOptions,
+  type RoundingDescription,
+  type RoundingMode,
+} from "../formats/index.js";
 import type { RegisterCommand } from "./commands.js";
+import { UserError } from "./errors.js";
 
-/** `headroom round` — not built yet; registers nothing. */
-export const register: RegisterCommand = () => {};
+const ACCEPTED_VALUES =
+  "accepted: a decimal number (1.5, -65519, 1e-8, inf, nan) or 0x followed by 16 hex digits (a binary64 bit pattern)";
+
+const DECIMAL = /^[+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?$/i;
+const SPECIAL = /^([+-]?)(inf|infinity|nan)$/i;
+const HEX_PATTERN = /^0x[0-9a-f]{16}$/i;
+
+/**
+ * Parse one value as typed by a user: a decimal number, inf/nan, or a 0x-prefixed 16-hex-digit binary64 pattern.
+ * Returns the value, or an error message naming what is accepted.
+ */
+export function parseValue(text: string): { value: number } | { error: string } {
+  const trimmed = text.trim();
+  if (DECIMAL.test(trimmed)) return { value: Number(trimmed) };
+  const special = SPECIAL.exec(trimmed);
+  if (special) {
+    const [, sign, word] = special;
+    if (word?.toLowerCase() === "nan") return { value: NaN };
+    return { value: sign === "-" ? -Infinity : Infinity };
+  }
+  if (HEX_PATTERN.test(trimmed)) {
+    const view = new DataView(new ArrayBuffer(8));
+    view.setBigUint64(0, BigInt(trimmed));
+    return { value: view.getFloat64(0) };
+  }
+  if (/^[+-]?0x/i.test(trimmed)) {
+    return { error: `malformed binary64 bit pattern "${text}": expected 0x followed by exactly 16 hex digits (e.g. 0x3ff0000000000000)` };
+  }
+  if (trimmed === "") return { error: `empty value; ${ACCEPTED_VALUES}` };
+  return { error: `"${text}" is not a number; ${ACCEPTED_VALUES}` };
+}
+
+/** A small seeded uniform source on [0, 1) (mulberry32) for --rounding stochastic. */
+function seededUniform(seed: number): () => number {
+  let state = seed >>> 0;
+  return () => {
+    state = (state + 0x6d2b79f5) >>> 0;
+    let t = state;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}
+
+/** A number for the text table: shortest round-trip form, with the sign of zero kept. */
+function show(value: number): string {
+  if (Object.is(value, -0)) return "-0";
+  if (Number.isNaN(value)) return "NaN";
+  if (!Number.isFinite(value)) return value > 0 ? "inf" : "-inf";
+  return String(value);
+}
+
+/** An error for the text table: four significant digits. */
+function showError(value: number): string {
+  if (Number.isNaN(value)) return "-";
+  if (!Number.isFinite(value)) return "inf";
+  if (value === 0) return "0";
+  return value.toPrecision(4).replace(/\.?0+(e|$)/, "$1");
+}
+
+/** A number for JSON: finite numbers as numbers; ±Infinity and NaN as strings ("Infinity", "-Infinity", "NaN"); −0 as 0. */
+function jsonNumber(value: number): number | string {
+  return Number.isFinite(value) ? value : String(value);
+}
+
+const COLUMNS = ["value", "format", "rounded", "bits", "class", "abs error", "rel error"] as const;
+const WIDTHS = [24, 8, 24, 18, 9, 10, 10];
+
+/** One row of the streaming text table, padded to fixed widths (longer cells push the rest right). */
+function textLine(cells: readonly string[]): string {
+  const padded = cells.map((cell, i) => {
+    const width = WIDTHS[i] ?? 0;
+    // numbers right-aligned, words left-aligned
+    return i === 1 || i === 4 ? cell.padEnd(width) : cell.padStart(width);
+  });
+  return padded.join("  ").trimEnd() + "\n";
+}
+
+function textRow(input: string, d: RoundingDescription): string {
+  return textLine([input, d.format, show(d.rounded), d.bits, d.class, showError(d.absoluteError), showError(d.relativeError)]);
+}
+
+function jsonRow(input: string, d: RoundingDescription): string {
+  return (
+    JSON.stringify({
+      input,
+      value: jsonNumber(d.value),
+      format: d.format,
+      rounded: jsonNumber(d.rounded),
+      bits: d.bits,
+      class: d.class,
+      flushed: d.flushed,
+      absoluteError: jsonNumber(d.absoluteError),
+      relativeError: jsonNumber(d.relativeError),
+    }) + "\n"
+  );
+}
+
+interface RoundCommandOptions {
+  to: string;
+  rounding: RoundingMode;
+  overflow?: OverflowMode;
+  flushSubnormals?: boolean;
+  seed: string;
+  json?: boolean;
+}
+
+/** Writes through a buffer, flushing at 64 KiB and waiting for the stream to drain (a million lines stay flat in memory). */
+class Output {
+  private chunks: string[] = [];
+  private size = 0;
+  async write(text: string): Promise<void> {
+    this.chunks.push(text);
+    this.size += text.length;
+    if (this.size >= 65536) await this.flush();
+  }
+  async flush(): Promise<void> {
+    if (this.size === 0) return;
+    const text = this.chunks.join("");
+    this.chunks = [];
+    this.size = 0;
+    if (!process.stdout.write(text)) await new Promise<void>((resolve) => process.stdout.once("drain", resolve));
+  }
+}
+
+function parseFormats(list: string): Format[] {
+  const names = list.split(",").map((name) => name.trim()).filter((name) => name !== "");
+  if (names.length === 0) throw new UserError(`--to needs at least one format; accepted: ${FORMAT_NAMES.join(", ")}`);
+  return names.map((name) => {
+    try {
+      return getFormat(name);
+    } catch {
+      throw new UserError(`unknown format "${name}" in --to; accepted: ${FORMAT_NAMES.join(", ")} (comma-separated)`);
+    }
+  });
+}
+
+function parseSeed(text: string): number {
+  if (!/^\d+$/.test(text) || Number(text) > 0xffffffff) {
+    throw new UserError(`--seed "${text}" is not accepted; expected a whole number from 0 to 4294967295`);
+  }
+  return Number(text);
+}
+
+async function* stdinLines(): AsyncGenerator<string> {
+  const lines = createInterface({ input: process.stdin, crlfDelay: Infinity });
+  for await (const line of lines) yield line;
+}
+
+/** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
+export const register: RegisterCommand = (program) => {
+  program
+    .command("round")
+    .description(
+      "Round values into formats (directly from binary64, one rounding) and show the result, its bit pattern, " +
+        "its class (zero, subnormal, normal, saturated, infinite, nan) and the rounding error",
+    )
+    .argument("<values...>", "decimal numbers, inf/nan, or 0x + 16 hex digits (binary64 bits); - reads one value per line from stdin")
+    .requiredOption("--to <formats>", `target formats, comma-separated: ${FORMAT_NAMES.join(", ")}`)
+    .addOption(new Option("--rounding <mode>", "how to round").choices(ROUNDING_MODES).default("nearest-even"))
+    .addOption(
+      new Option("--overflow <mode>", "past the largest finite value: clamp to it, or give infinity (NaN for e4m3); default: saturate for e4m3, infinity for the others")
+        .choices(OVERFLOW_MODES),
+    )
+    .option("--flush-subnormals", "send subnormal results to zero, as some hardware does (bfloat16 often)")
+    .option("--seed <n>", "seed of stochastic rounding (a whole number)", "1")
+    .option("--json", "one JSON object per line (per value and format); infinities and NaN as strings")
+    // values such as -inf and -nan look like options to the parser; unknown options arrive as values and are named below
+    .allowUnknownOption()
+    .action(async (values: string[], options: RoundCommandOptions) => {
+      const unknown = values.find((text) => /^--?[a-z]/i.test(text) && !SPECIAL.test(text));
+      if (unknown !== undefined) {
+        throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
+      }
+      const formats = parseFormats(options.to);
+      const roundOptions: RoundOptions = {
+        mode: options.rounding,
+        ...(options.overflow !== undefined ? { overflow: options.overflow } : {}),
+        flushSubnormals: options.flushSubnormals === true,
+        ...(options.rounding === "stochastic" ? { random: seededUniform(parseSeed(options.seed)) } : {}),
+      };
+      if (values.filter((v) => v === "-").length > 1) throw new UserError(`"-" (read stdin) may be given once`);
+      // check every argument before printing anything
+      for (const text of values) {
+        if (text === "-") continue;
+        const parsed = parseValue(text);
+        if ("error" in parsed) throw new UserError(parsed.error);
+      }
+      const out = new Output();
+      const row = options.json ? jsonRow : textRow;
+      let headerDue = !options.json;
+      const emit = async (input: string, value: number): Promise<void> => {
+        if (headerDue) {
+          headerDue = false;
+          await out.write(textLine([...COLUMNS]));
+        }
+        for (const format of formats) await out.write(row(input, describeRounding(format, value, roundOptions)));
+      };
+      try {
+        for (const text of values) {
+          if (text !== "-") {
+            const parsed = parseValue(text) as { value: number };
+            await emit(text, parsed.value);
+            continue;
+          }
+          let lineNumber = 0;
+          let count = 0;
+          for await (const line of stdinLines()) {
+            lineNumber++;
+            if (line.trim() === "") continue;
+            const parsed = parseValue(line);
+            if ("error" in parsed) throw new UserError(`stdin line ${lineNumber}: ${parsed.error}`);
+            count++;
+            await emit(line.trim(), parsed.value);
+          }
+          if (count === 0) throw new UserError(`no values on stdin; expected one value per line (${ACCEPTED_VALUES})`);
+        }
+      } finally {
+        await out.flush();
+      }
+    });
+};

@@ -58,3 +58,4 @@ export {
   type CodeArray,
   type FloatArray,
 } from "./bulk.js";
+export { describeRounding, type RoundingDescription } from "./describe.js";
