@@ -32,58 +32,91 @@ function overflowValue(format: Format, options: RoundOptions | undefined): numbe
  * @example roundArrayInPlace(FORMATS.bfloat16, Float64Array.of(1 / 3))[0] // => 0.333984375
  */
 export function roundArrayInPlace<T extends FloatArray>(format: Format, data: T, options?: RoundOptions): T {
-  const mode = options?.mode ?? "nearest-even";
-  if (mode !== "nearest-even" || !LITTLE_ENDIAN) {
-    for (let i = 0; i < data.length; i++) data[i] = roundTo(format, data[i] as number, options);
-    return data;
-  }
-  const flush = options?.flushSubnormals === true;
-  if (data instanceof Float64Array) roundFloat64Nearest(format, data, overflowValue(format, options), flush);
-  else roundFloat32Nearest(format, data as Float32Array, overflowValue(format, options), flush);
-  return data;
-}
-
-function roundFloat64Nearest(format: Format, data: Float64Array, overflowTo: number, flush: boolean): void {
-  const words = new Uint32Array(data.buffer, data.byteOffset, data.length * 2);
-  const magic = formatTables(format).magic64;
-  const max = format.maxFinite;
-  const minNormal = flush ? format.minNormal : 0;
-  const n = data.length;
-  for (let i = 0; i < n; i++) {
-    const high = words[2 * i + 1] as number;
-    const m = magic[(high >>> 20) & 0x7ff] as number;
-    // (|x| + M) − M rounds |x| to the format's grid with ties to even; see FormatTables.magic64
-    let r = Math.abs(data[i] as number) + m - m;
-    if (r > max) r = overflowTo;
-    else if (r < minNormal) r = 0;
-    data[i] = high >>> 31 === 0 ? r : -r;
-  }
-}
-
-function roundFloat32Nearest(format: Format, data: Float32Array, overflowTo: number, flush: boolean): void {
-  const words = new Uint32Array(data.buffer, data.byteOffset, data.length);
-  const magic = formatTables(format).magic32;
-  const max = format.maxFinite;
-  const minNormal = flush ? format.minNormal : 0;
-  const n = data.length;
-  for (let i = 0; i < n; i++) {
-    const word = words[i] as number;
-    const m = magic[(word >>> 23) & 0xff] as number;
-    let r = Math.abs(data[i] as number) + m - m;
-    if (r > max) r = overflowTo;
-    else if (r < minNormal) r = 0;
-    data[i] = word >>> 31 === 0 ? r : -r;
-  }
+  return roundInto(format, data, data, options);
 }
 
 /**
- * Round `source` into the format, writing into `target` (a new Float64Array of the same kind when omitted);
- * `source` is not modified.
+ * Round `source` into the format, writing the results into `target` (a new array of the same kind when omitted);
+ * `source` is not modified. `target` may be `source` itself, or a Float64Array for Float32Array data.
  * @example roundArray(FORMATS.binary16, Float64Array.of(65519, 65520)) // => Float64Array [65504, Infinity]
  */
-export function roundArray<T extends FloatArray>(format: Format, source: T, options?: RoundOptions): T {
-  const copy = source.slice() as T;
-  return roundArrayInPlace(format, copy, options);
+export function roundArray<T extends FloatArray, U extends FloatArray = T>(format: Format, source: T, options?: RoundOptions, target?: U): U {
+  const out = (target ?? (source instanceof Float64Array ? new Float64Array(source.length) : new Float32Array(source.length))) as U;
+  if (out.length < source.length) throw new RangeError(`target holds ${out.length} values; ${source.length} given`);
+  return roundInto(format, source, out, options);
+}
+
+function roundInto<U extends FloatArray>(format: Format, source: FloatArray, target: U, options: RoundOptions | undefined): U {
+  const mode = options?.mode ?? "nearest-even";
+  if (mode !== "nearest-even" || !LITTLE_ENDIAN) {
+    for (let i = 0; i < source.length; i++) target[i] = roundTo(format, source[i] as number, options);
+    return target;
+  }
+  const flush = options?.flushSubnormals === true;
+  const overflowTo = overflowValue(format, options);
+  if (source instanceof Float64Array) roundFloat64Nearest(format, source, target, overflowTo, flush);
+  else roundFloat32Nearest(format, source, target, overflowTo, flush);
+  return target;
+}
+
+// Two kernels per source type, so that each loop sees one target type (keeps V8's element access monomorphic).
+function roundFloat64Nearest(format: Format, source: Float64Array, target: FloatArray, overflowTo: number, flush: boolean): void {
+  if (target instanceof Float64Array) roundFloat64To64(format, source, target, overflowTo, flush);
+  else roundFloat64To32(format, source, target, overflowTo, flush);
+}
+
+function roundFloat64To64(format: Format, source: Float64Array, target: Float64Array, overflowTo: number, flush: boolean): void {
+  const words = new Uint32Array(source.buffer, source.byteOffset, source.length * 2);
+  const magic = formatTables(format).magic64;
+  const max = format.maxFinite;
+  // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
+  const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
+  const n = source.length;
+  for (let i = 0; i < n; i++) {
+    const x = source[i] as number;
+    const m = magic[((words[2 * i + 1] as number) >>> 20) & 0x7ff] as number;
+    // (x + M) − M rounds x to the format's grid with ties to even (see FormatTables.magic64); it is symmetric
+    // in the sign of x, so no data-dependent sign branch is needed (a random sign would defeat branch prediction)
+    let r = x + m - m;
+    if (Math.abs(r) > max) r = x > 0 ? overflowTo : -overflowTo;
+    // x · 0 is a zero with x's sign: the addition above turns −0 and tiny negatives into +0
+    else if (Math.abs(r) < zeroBelow) r = x * 0;
+    target[i] = r;
+  }
+}
+
+function roundFloat64To32(format: Format, source: Float64Array, target: Float32Array, overflowTo: number, flush: boolean): void {
+  const words = new Uint32Array(source.buffer, source.byteOffset, source.length * 2);
+  const magic = formatTables(format).magic64;
+  const max = format.maxFinite;
+  // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
+  const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
+  const n = source.length;
+  for (let i = 0; i < n; i++) {
+    const x = source[i] as number;
+    const m = magic[((words[2 * i + 1] as number) >>> 20) & 0x7ff] as number;
+    let r = x + m - m;
+    if (Math.abs(r) > max) r = x > 0 ? overflowTo : -overflowTo;
+    else if (Math.abs(r) < zeroBelow) r = x * 0;
+    target[i] = r;
+  }
+}
+
+function roundFloat32Nearest(format: Format, source: Float32Array, target: FloatArray, overflowTo: number, flush: boolean): void {
+  const words = new Uint32Array(source.buffer, source.byteOffset, source.length);
+  const magic = formatTables(format).magic32;
+  const max = format.maxFinite;
+  // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
+  const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
+  const n = source.length;
+  for (let i = 0; i < n; i++) {
+    const x = source[i] as number;
+    const m = magic[((words[i] as number) >>> 23) & 0xff] as number;
+    let r = x + m - m;
+    if (Math.abs(r) > max) r = x > 0 ? overflowTo : -overflowTo;
+    else if (Math.abs(r) < zeroBelow) r = x * 0;
+    target[i] = r;
+  }
 }
 
 // --------------------------------------------------------------------------------------------------------------
