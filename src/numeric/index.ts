@@ -4,3 +4,7 @@ export * from "./quadrature.js";
 export * from "./activations.js";
 export * from "./random.js";
 export * from "./roots.js";
+export * from "./extremes.js";
+export * from "./spread.js";
+export * from "./meanField.js";
+export * from "./logspace.js";
