@@ -51,7 +51,7 @@ interface TensorRecord {
 
 interface PhaseResult {
   tensors: TensorRecord[];
-  hazards: { site: Omit<HazardSite, "end">; key: string }[];
+  hazards: Omit<HazardSite, "end">[];
 }
 
 const SLOT: Record<TensorRole, PlanSlot> = {
@@ -107,7 +107,7 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
 
 class Phase {
   readonly tensors: TensorRecord[] = [];
-  readonly hazards: { site: Omit<HazardSite, "end">; key: string }[] = [];
+  readonly hazards: Omit<HazardSite, "end">[] = [];
   readonly stash = new Map<number, unknown>();
   readonly forwardOut = new Map<number, Signal>();
   readonly ctx: OpContext;
@@ -154,10 +154,10 @@ class Phase {
       input: profileOf(h.input, h.inputElements),
       terms: h.terms,
       guarded: h.guarded,
-      detail: h.detail,
+      detail: this.build ? textOf(h.detail) : "",
     };
     if (h.output !== undefined) site.output = profileOf(h.output, h.outputElements ?? h.inputElements);
-    this.hazards.push({ site, key: `${layer.name}#${index}` });
+    this.hazards.push(site);
   }
 
   weightRecords(layer: GraphLayer): void {
@@ -216,7 +216,7 @@ class Phase {
       this.weightRecords(layer);
       for (const inner of result.inner) {
         this.emit({
-          id: `${layer.name}/${inner.role}:${inner.suffix}`,
+          id: this.build ? `${layer.name}/${inner.role}:${inner.suffix}` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -233,7 +233,7 @@ class Phase {
       this.forwardOut.set(layer.index, signal);
       if (NORMS.has(layer.family) || layer.family === "embedding" || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
       this.emit({
-        id: `${layer.name}/${result.role}`,
+        id: this.build ? `${layer.name}/${result.role}` : "",
         layer: layer.name,
         layerIndex: layer.index,
         family: layer.family,
@@ -255,7 +255,7 @@ class Phase {
       const layer = layers[i] as GraphLayer;
       if (!(seeded && i === layers.length - 1)) {
         this.emit({
-          id: `${layer.name}/activation-gradient`,
+          id: this.build ? `${layer.name}/activation-gradient` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -276,7 +276,7 @@ class Phase {
       const result = rule.backward(this.ctx, layer, this.stash.get(layer.index), gradient, branchResults);
       for (const inner of result.inner) {
         this.emit({
-          id: `${layer.name}/activation-gradient:${inner.suffix}`,
+          id: this.build ? `${layer.name}/activation-gradient:${inner.suffix}` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -313,7 +313,7 @@ class Phase {
     const profile = profileOf({ ...base, q: finalQ }, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
-    const id = `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}`;
+    const id = this.build ? `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}` : "";
     const factors: Factor[] = [];
     if (this.build) {
       factors.push({
@@ -341,10 +341,10 @@ class Phase {
         input: profileOf(base, weight.elements),
         terms: A * W,
         guarded: false,
-        detail: `${id}: ${A} accumulation step(s) × ${W} worker(s) summed${averaged ? `, then divided by ${W}` : ""}`,
+        detail: !this.build ? "" : `${id}: ${A} accumulation step(s) × ${W} worker(s) summed${averaged ? `, then divided by ${W}` : ""}`,
         output: profileOf({ ...base, q: summedQ }, weight.elements),
       };
-      this.hazards.push({ site, key: `${id}#sum` });
+      this.hazards.push(site);
     }
   }
 }
@@ -363,7 +363,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     signal = { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
     node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], build);
     p.emit({
-      id: "input/activation",
+      id: build ? "input/activation" : "",
       layer: "input",
       layerIndex: -1,
       family: "input",
@@ -391,7 +391,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     training.horizon.finalLoss,
   );
   p.emit({
-    id: "loss/loss",
+    id: build ? "loss/loss" : "",
     layer: "loss",
     layerIndex: graph.layerCount,
     family: "loss",
@@ -403,21 +403,18 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
   });
   if (training.loss.reduction === "sum") {
     p.hazards.push({
-      key: "loss#sum",
-      site: {
-        kind: "loss-value",
-        layer: "loss",
-        input: profileOf({ q: seed.termValue * seed.termValue, zeroFraction: 0, shape: "constant", logVar: 0 }, seed.terms),
-        terms: seed.terms,
-        guarded: false,
-        detail: `the loss sums ${seed.terms} terms (sum reduction)`,
-        output: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
-      },
+      kind: "loss-value",
+      layer: "loss",
+      input: profileOf({ q: seed.termValue * seed.termValue, zeroFraction: 0, shape: "constant", logVar: 0 }, seed.terms),
+      terms: seed.terms,
+      guarded: false,
+      detail: `the loss sums ${seed.terms} terms (sum reduction)`,
+      output: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
     });
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);
   p.emit({
-    id: `${last.name}/activation-gradient`,
+    id: build ? `${last.name}/activation-gradient` : "",
     layer: last.name,
     layerIndex: last.index,
     family: last.family,
@@ -429,7 +426,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
   });
   if (seed.target !== undefined) {
     p.emit({
-      id: `${last.name}/activation-gradient:target-class`,
+      id: build ? `${last.name}/activation-gradient:target-class` : "",
       layer: last.name,
       layerIndex: last.index,
       family: last.family,
@@ -534,17 +531,15 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
   for (let i = 0; i < start.tensors.length; i++) {
     const a = start.tensors[i] as TensorRecord;
     const b = end.tensors[i];
-    if (b === undefined || b.id !== a.id) throw new RangeError(`internal: start and end passes disagree at tensor ${a.id}`);
+    if (b === undefined || b.layer !== a.layer || b.role !== a.role) throw new RangeError(`internal: start and end passes disagree at tensor ${a.id}`);
     const tensor: TensorPrediction = new PredictedTensor(a, b.profile);
     tensors.push(tensor);
   }
-  const endHazards = new Map(end.hazards.map((h) => [h.key, h.site]));
-  const hazards: HazardSite[] = start.hazards.map(({ site, key }) => {
-    const other = endHazards.get(key);
+  // both passes visit the same operations in the same order
+  const hazards: HazardSite[] = start.hazards.map((site, i) => {
+    const other = end.hazards[i];
     const full: HazardSite = { ...site };
-    if (other !== undefined) {
-      full.end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
-    }
+    if (other !== undefined) full.end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
     return full;
   });
   return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };

@@ -124,7 +124,7 @@ export interface OpHazard {
   outputElements?: number;
   terms: number;
   guarded: boolean;
-  detail: string;
+  detail: Text;
 }
 
 /** Forward result of one layer. */

@@ -172,7 +172,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         inputElements: ctx.batch * sampleElements(layer.input),
         terms: n,
         guarded: true,
-        detail: `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
+        detail: () => `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
       },
     ],
     stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, probabilitySecond: second },

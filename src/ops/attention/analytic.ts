@@ -31,7 +31,7 @@ const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q�
 const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^Var[s]/n², 1/n) (derived; SCIENCE.md §2.10)";
 const AVERAGE_SOURCE = "attention average: E[o²] = E[v²]·Σ_j p_j² (uniform 1/P; causal H_P/P)";
 
-/** Sums over the rows of an attention matrix (memoised by positions, causal and logit variance). */
+/** Sums over the rows of an attention matrix. */
 interface RowSums {
   /** mean over rows of Σ_j E[p_ij²] */
   sumSquares: number;
@@ -43,7 +43,6 @@ interface RowSums {
   rowLog2Variance: number;
 }
 
-const rowCache = new Map<string, RowSums>();
 
 function harmonic(n: number): number {
   if (n <= 0) return 0;
@@ -56,11 +55,35 @@ function harmonic(n: number): number {
   return Math.log(n) + 0.5772156649015329 + 1 / (2 * n) - 1 / (12 * n * n) + 1 / (120 * n ** 4);
 }
 
+const rowLengthCache = new Map<number, number>();
+
+/** Variance of log2 i over the unmasked elements of a causal P×P matrix (row i holds i of them), memoised by P. */
+function causalRowLog2Variance(positions: number): number {
+  const hit = rowLengthCache.get(positions);
+  if (hit !== undefined) return hit;
+  const unmasked = (positions * (positions + 1)) / 2;
+  let m1 = 0;
+  let m2 = 0;
+  if (positions <= 4096) {
+    for (let i = 1; i <= positions; i++) {
+      const l = Math.log2(i);
+      m1 += i * l;
+      m2 += i * l * l;
+    }
+    m1 /= unmasked;
+    m2 /= unmasked;
+  } else {
+    // continuous limit: density ∝ i on [0, P]: E[ln i] = ln P − ½, Var[ln i] = ¼
+    m1 = (Math.log(positions) - 0.5) / Math.LN2;
+    m2 = m1 * m1 + 0.25 / (Math.LN2 * Math.LN2);
+  }
+  const variance = Math.max(m2 - m1 * m1, 0);
+  rowLengthCache.set(positions, variance);
+  return variance;
+}
+
 /** Row sums of E[p²] for P positions at logit variance s2, full or causal. */
 export function attentionRowSums(positions: number, causal: boolean, s2: number): RowSums {
-  const key = `${positions}|${causal}|${s2}`;
-  const hit = rowCache.get(key);
-  if (hit !== undefined) return hit;
   const spread = Math.exp(s2);
   let result: RowSums;
   if (!causal) {
@@ -71,31 +94,14 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
     const full = Math.min(Math.floor(spread), positions); // rows short enough to be (near) one-hot
     const total = full + spread * (harmonic(positions) - harmonic(full));
     const unmasked = (positions * (positions + 1)) / 2;
-    // spread of log2 i over unmasked elements, weighted by row length i
-    let m1 = 0;
-    let m2 = 0;
-    if (positions <= 4096) {
-      for (let i = 1; i <= positions; i++) {
-        const l = Math.log2(i);
-        m1 += i * l;
-        m2 += i * l * l;
-      }
-      m1 /= unmasked;
-      m2 /= unmasked;
-    } else {
-      // continuous limit: density ∝ i on [0, P]: E[ln i] = ln P − ½, Var[ln i] = ¼
-      m1 = (Math.log(positions) - 0.5) / Math.LN2;
-      m2 = m1 * m1 + 0.25 / (Math.LN2 * Math.LN2);
-    }
+    const rowLog2Variance = causalRowLog2Variance(positions);
     result = {
       sumSquares: total / positions,
       elementSecond: total / unmasked,
       keys: unmasked / positions,
-      rowLog2Variance: Math.max(m2 - m1 * m1, 0),
+      rowLog2Variance,
     };
   }
-  if (rowCache.size > 10_000) rowCache.clear();
-  rowCache.set(key, result);
   return result;
 }
 
@@ -205,7 +211,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: matrixElements,
         terms: d,
         guarded: false,
-        detail:
+        detail: () =>
           spec.scaling === "logits"
             ? `query·key summed over head width ${d} before the 1/√${d} scaling`
             : spec.scaling === "query"
@@ -218,7 +224,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         inputElements: matrixElements,
         terms: P,
         guarded: spec.subtractMax,
-        detail: `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}`,
+        detail: () => `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}`,
       },
       {
         kind: "accumulation",
@@ -228,7 +234,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: projectionElements,
         terms: Math.round(rows.keys),
         guarded: false,
-        detail: `probability-weighted values summed over ${fmt(rows.keys)} keys`,
+        detail: () => `probability-weighted values summed over ${fmt(rows.keys)} keys`,
       },
       {
         kind: "accumulation",
@@ -238,7 +244,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: ctx.batch * P * D,
         terms: inner,
         guarded: false,
-        detail: `output projection summed over ${inner} inputs`,
+        detail: () => `output projection summed over ${inner} inputs`,
       },
     ];
     return {

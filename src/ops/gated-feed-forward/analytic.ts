@@ -85,7 +85,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: hiddenElements,
           terms: D,
           guarded: false,
-          detail: `gate and up projections summed over ${D} inputs`,
+          detail: () => `gate and up projections summed over ${D} inputs`,
         },
         {
           kind: "accumulation",
@@ -95,7 +95,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: ctx.batch * P * D,
           terms: spec.hidden,
           guarded: false,
-          detail: `down projection summed over ${spec.hidden} hidden units`,
+          detail: () => `down projection summed over ${spec.hidden} hidden units`,
         },
       ],
       stash: {

@@ -73,7 +73,7 @@ export const normRule: AnalyticRule<NormStash> = {
           inputElements: ctx.batch * sampleElements(layer.input),
           terms,
           guarded: false,
-          detail: `${layer.family} sums the squares of ${terms} elements per statistic`,
+          detail: () => `${layer.family} sums the squares of ${terms} elements per statistic`,
         },
       ],
       stash: { input, denominator, normalisedSecond, gainSquared },

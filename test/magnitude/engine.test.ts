@@ -1,0 +1,244 @@
+/** The engine's bookkeeping: loss seeds, reductions, workers and accumulation, zero mass, ledgers, hazards. */
+import { readFileSync, readdirSync } from "node:fs";
+import { describe, expect, test } from "vitest";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import type { Prediction, TensorPrediction } from "../../src/magnitude/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+import type { NetworkSpec, TrainingSpec } from "../../src/spec/types.js";
+import {
+  act,
+  attention,
+  crossEntropy,
+  dense,
+  dropout,
+  embedding,
+  features,
+  gated,
+  he,
+  lecun,
+  makeSpec,
+  mse,
+  norm,
+  normalInit,
+  repeat,
+  residual,
+  tokens,
+} from "./build-spec.js";
+
+function run(spec: NetworkSpec, lossScale?: number): Prediction {
+  const result = buildGraph(spec);
+  if (!result.ok) throw new Error(result.issues.map((i) => i.message).join("; "));
+  return predict(result.graph, spec, lossScale === undefined ? {} : { lossScale });
+}
+
+function tensor(prediction: Prediction, id: string): TensorPrediction {
+  const found = prediction.tensors.find((t) => t.id === id);
+  if (found === undefined) throw new Error(`no tensor ${id}`);
+  return found;
+}
+
+const ms = (t: TensorPrediction, phase: "start" | "end" = "start"): number => t[phase].meanSquare ?? NaN;
+
+const training = (overrides: Partial<TrainingSpec>): { training: Partial<TrainingSpec> } => ({ training: overrides });
+
+function smallTransformer(): NetworkSpec {
+  return makeSpec(
+    [
+      embedding("embed", 5000, 128, normalInit(0.02)),
+      repeat("blocks", 3, [
+        residual("attn", [norm("norm", "rms-norm"), attention("self", 4, 32, { causal: true })]),
+        residual("mlp", [norm("norm", "rms-norm"), gated("ff", 512), dropout("drop", 0.1)]),
+      ]),
+      norm("final", "rms-norm"),
+      dense("head", 5000, normalInit(0.02)),
+    ],
+    { input: tokens(64), loss: crossEntropy(5000), ...training({ batch: 4, horizon: { steps: 100, weightGrowth: 1.3, finalLoss: 1.5 } }) },
+  );
+}
+
+describe("the prediction lists every tensor once", () => {
+  test("ids are unique; forward tensors come before backward ones; every weight has a gradient", () => {
+    const p = run(smallTransformer());
+    const ids = p.tensors.map((t) => t.id);
+    expect(new Set(ids).size).toBe(ids.length);
+    const firstGradient = p.tensors.findIndex((t) => t.role === "activation-gradient");
+    expect(p.tensors.slice(0, firstGradient).every((t) => !t.role.includes("gradient"))).toBe(true);
+    const weights = p.tensors.filter((t) => t.role === "weight").map((t) => t.id.replace("/weight", "/weight-gradient"));
+    for (const id of weights) expect(ids).toContain(id);
+    expect(p.specName).toBe("test-network");
+  });
+
+  test("every ledger's factors add up to log2 of the reported rms (the chain rule made visible)", () => {
+    const p = run(smallTransformer());
+    for (const t of p.tensors) {
+      if (!(t.start.rms > 0)) continue;
+      const sum = t.ledger.reduce((a, e) => a + e.log2Factor, 0);
+      expect(sum, t.id).toBeCloseTo(Math.log2(t.start.rms), 9);
+      for (const entry of t.ledger) expect(entry.source.length, `${t.id}: ${entry.rule}`).toBeGreaterThan(0);
+    }
+  });
+
+  test("ledgers survive a spread copy and JSON", () => {
+    const t = tensor(run(smallTransformer()), "blocks.2.mlp.ff/activation:product");
+    const copy = { ...t, source: "measured" as const };
+    expect(copy.ledger.length).toBeGreaterThan(3);
+    const json = JSON.parse(JSON.stringify(t)) as TensorPrediction;
+    expect(json.ledger).toEqual(t.ledger);
+  });
+});
+
+describe("loss seeds (SCIENCE.md §2.1 output seed; DESIGN.md §3)", () => {
+  test("softmax cross-entropy with mean reduction: right class (1 − 1/C)/N, wrong classes e^(s²/2)/(C·N), log-normal", () => {
+    const C = 1000;
+    const spec = makeSpec([dense("head", C, normalInit(0.5 / Math.sqrt(64)))], { input: features(64, 8), loss: crossEntropy(C), ...training({ batch: 16 }) });
+    const p = run(spec);
+    const N = 16 * 8;
+    const s2 = ms(tensor(p, "head/pre-activation"));
+    expect(s2).toBeCloseTo(0.25, 12);
+    const right = tensor(p, "head/activation-gradient:target-class");
+    expect(right.start.rms).toBeCloseTo((1 - 1 / C) / N, 15);
+    expect(right.start.elements).toBe(N);
+    const wrong = tensor(p, "head/activation-gradient");
+    expect(wrong.start.shape).toBe("log-normal");
+    expect(wrong.start.rms).toBeCloseTo(Math.exp(s2 / 2) / C / N, 15);
+    expect(wrong.start.elementLog2Spread).toBeCloseTo(Math.sqrt(s2) / Math.LN2, 12);
+    expect(wrong.start.elements).toBe(N * (C - 1));
+    expect(tensor(p, "loss/loss").start.rms).toBeCloseTo(Math.log(C) + s2 / 2, 12);
+  });
+
+  test("sum reduction drops the 1/N and reports the loss-value hazard", () => {
+    const spec = (reduction: "mean" | "sum"): NetworkSpec => makeSpec([dense("head", 10, lecun)], { input: features(32, 4), loss: crossEntropy(10, reduction), ...training({ batch: 8 }) });
+    const mean = run(spec("mean"));
+    const sum = run(spec("sum"));
+    expect(tensor(sum, "head/activation-gradient:target-class").start.rms / tensor(mean, "head/activation-gradient:target-class").start.rms).toBeCloseTo(32, 12);
+    const hazard = sum.hazards.find((h) => h.kind === "loss-value");
+    expect(hazard?.terms).toBe(32);
+    expect(mean.hazards.some((h) => h.kind === "loss-value")).toBe(false);
+  });
+
+  test("at the end of the horizon the right-class gradient is (1 − e^(−final loss))/N", () => {
+    const spec = makeSpec([dense("head", 100, lecun)], { input: features(32), loss: crossEntropy(100), ...training({ batch: 10, horizon: { steps: 10, weightGrowth: 1, finalLoss: 0.1 } }) });
+    const right = tensor(run(spec), "head/activation-gradient:target-class");
+    expect(right.end.rms).toBeCloseTo((1 - Math.exp(-0.1)) / 10, 14);
+    expect(right.start.rms).toBeCloseTo((1 - 1 / 100) / 10, 14);
+  });
+
+  test("mean squared error: 2·√(E[y²] + target²)/M; the end shrinks by √(final loss / initial loss)", () => {
+    const spec = makeSpec([dense("out", 4, lecun)], { input: features(16), loss: mse(3), ...training({ batch: 8, horizon: { steps: 10, weightGrowth: 1, finalLoss: 0.25 } }) });
+    const g = tensor(run(spec), "out/activation-gradient");
+    const M = 8 * 4;
+    expect(g.start.rms).toBeCloseTo((2 * Math.sqrt(1 + 9)) / M, 14);
+    expect(g.end.rms / g.start.rms).toBeCloseTo(Math.sqrt(0.25 / 10), 12);
+  });
+
+  test("a loss scale S multiplies every gradient by S and leaves the forward pass alone (Micikevicius et al. 2018 §3.2)", () => {
+    const base = run(smallTransformer());
+    const scaled = run(smallTransformer(), 1024);
+    for (const id of ["embed/activation-gradient", "blocks.0.attn.self/weight-gradient:query", "head/activation-gradient:target-class"]) {
+      expect(tensor(scaled, id).start.rms / tensor(base, id).start.rms).toBeCloseTo(1024, 9);
+    }
+    expect(tensor(scaled, "head/pre-activation").start.rms).toBe(tensor(base, "head/pre-activation").start.rms);
+  });
+});
+
+describe("weight gradients, workers and accumulation", () => {
+  test("a dense weight gradient is the incoherent sum N·E[x²]·E[δ²]; the coherent bracket is √N larger (SCIENCE.md §2.1)", () => {
+    const spec = makeSpec([dense("a", 32, he), act("r"), dense("out", 2, lecun)], { input: features(16, 5), ...training({ batch: 12 }) });
+    const p = run(spec);
+    const N = 12 * 5;
+    const x = ms(tensor(p, "r/activation"));
+    const delta = ms(tensor(p, "out/activation-gradient"));
+    const g = tensor(p, "out/weight-gradient");
+    expect(ms(g)).toBeCloseTo(N * x * delta, 18);
+    expect(g.start.coherentRms! / g.start.rms).toBeCloseTo(Math.sqrt(N), 9);
+  });
+
+  test("accumulation divides every gradient by the steps; the combined weight gradient is A·W·q summed, ÷W² averaged", () => {
+    const layers = [dense("a", 32, he), act("r"), dense("out", 2, lecun)];
+    const plain = run(makeSpec(layers, { input: features(16) }));
+    const spread = run(makeSpec(layers, { input: features(16), ...training({ accumulationSteps: 4, workers: 8, workerGradients: "average" }) }));
+    expect(tensor(spread, "a/activation-gradient").start.rms / tensor(plain, "a/activation-gradient").start.rms).toBeCloseTo(1 / 4, 12);
+    const ratio = ms(tensor(spread, "a/weight-gradient")) / ms(tensor(plain, "a/weight-gradient"));
+    expect(ratio).toBeCloseTo((4 * 8) / 16 / 64, 12);
+    const sum = spread.hazards.find((h) => h.kind === "gradient-sum" && h.layer === "a");
+    expect(sum?.terms).toBe(32);
+    const summed = run(makeSpec(layers, { input: features(16), ...training({ workers: 8, workerGradients: "sum" }) }));
+    expect(ms(tensor(summed, "a/weight-gradient")) / ms(tensor(plain, "a/weight-gradient"))).toBeCloseTo(8, 12);
+  });
+
+  test("embedding table gradients: a share e^(−N/V) of rows is exactly zero (uniform token use)", () => {
+    const spec = makeSpec([embedding("e", 4096, 16), dense("out", 8, lecun)], { input: tokens(32), loss: crossEntropy(8), ...training({ batch: 16 }) });
+    const g = tensor(run(spec), "e/weight-gradient:table");
+    expect(g.start.zeroFraction).toBeCloseTo(Math.exp(-(16 * 32) / 4096), 12);
+    expect(g.start.elements).toBe(4096 * 16);
+  });
+});
+
+describe("layer rules inside the engine", () => {
+  test("dropout: zero mass = rate, second moment ÷ (1 − rate) forward and backward (Srivastava et al. 2014)", () => {
+    const p = run(makeSpec([dense("a", 64, lecun), dropout("d", 0.25), dense("out", 1, lecun)], { input: features(64) }));
+    const d = tensor(p, "d/activation");
+    expect(d.start.zeroFraction).toBe(0.25);
+    expect(ms(d) / ms(tensor(p, "a/pre-activation"))).toBeCloseTo(1 / 0.75, 12);
+    expect(ms(tensor(p, "a/activation-gradient")) / ms(tensor(p, "d/activation-gradient"))).toBeCloseTo(1 / 0.75, 12);
+    expect(tensor(p, "a/activation-gradient").start.zeroFraction).toBe(0.25);
+  });
+
+  test("norms reset the second moment to gain² and report a sum-of-squares hazard over the features", () => {
+    const p = run(makeSpec([dense("a", 300, normalInit(10)), norm("ln", "layer-norm", 3), dense("out", 1, lecun)], { input: features(64) }));
+    expect(ms(tensor(p, "ln/activation"))).toBeCloseTo(9, 6);
+    const hazard = p.hazards.find((h) => h.kind === "norm-sum-of-squares");
+    expect(hazard?.terms).toBe(300);
+    expect(hazard?.input.rms).toBeGreaterThan(50);
+  });
+
+  test("gated product: E[h²] = E[φ(g)²]·E[u²] with product tails", () => {
+    const p = run(makeSpec([gated("ff", 256, "relu", lecun), dense("out", 1, lecun)], { input: features(64, 4) }));
+    const product = tensor(p, "ff/activation:product");
+    expect(ms(product)).toBeCloseTo(0.5 * 1, 12);
+    expect(product.start.zeroFraction).toBe(0.5);
+    const gaussianMax = tensor(p, "ff/pre-activation:up").start.maxElement! / tensor(p, "ff/pre-activation:up").start.rms;
+    expect(product.start.maxElement! / product.start.rms).toBeGreaterThan(gaussianMax);
+  });
+
+  test("attention hazards: exp guarded only when the row maximum is subtracted; q·k accumulates over the head width", () => {
+    const p = run(makeSpec([attention("att", 2, 64, { scaling: "logits" }), dense("out", 1, lecun)], { input: features(128, 16) }));
+    const exp = p.hazards.find((h) => h.kind === "softmax-exp" && h.layer === "att");
+    expect(exp?.guarded).toBe(true);
+    expect(exp?.terms).toBe(16);
+    const qk = p.hazards.find((h) => h.kind === "accumulation" && h.layer === "att");
+    expect(qk?.terms).toBe(64);
+    // before the 1/√d scaling the accumulated dot product has variance d (Vaswani et al. 2017, footnote 4)
+    expect(qk?.output?.meanSquare).toBeCloseTo(64, 9);
+    expect(qk?.end).toBeDefined();
+  });
+
+  test("end of horizon: weights grown by g make a homogeneous ReLU chain grow by g per layer", () => {
+    const layers = [];
+    for (let i = 0; i < 6; i++) layers.push(dense(`d${i}`, 64, he), act(`a${i}`));
+    const p = run(makeSpec([...layers, dense("out", 1, lecun)], { input: features(64), ...training({ horizon: { steps: 1, weightGrowth: 1.5 } }) }));
+    expect(tensor(p, "d0/weight").end.rms / tensor(p, "d0/weight").start.rms).toBeCloseTo(1.5, 12);
+    expect(ms(tensor(p, "a5/activation"), "end") / ms(tensor(p, "a5/activation"))).toBeCloseTo(1.5 ** 12, 9);
+  });
+});
+
+describe("the example specs", () => {
+  const files = readdirSync("specs").filter((f) => f.endsWith(".yaml"));
+  test.each(files)("%s predicts finite magnitudes with stated assumptions", (file) => {
+    const parsed = parseSpec(readFileSync(`specs/${file}`, "utf8"), `specs/${file}`);
+    if (!parsed.ok) throw new Error(`${file} does not parse`);
+    const p = run(parsed.spec);
+    expect(p.tensors.length).toBeGreaterThan(4);
+    for (const t of p.tensors) {
+      for (const phase of ["start", "end"] as const) {
+        const profile = t[phase];
+        expect(Number.isFinite(profile.rms), `${t.id} ${phase}`).toBe(true);
+        expect(profile.zeroFraction).toBeGreaterThanOrEqual(0);
+        expect(profile.zeroFraction).toBeLessThanOrEqual(1);
+        expect(Number.isFinite(profile.log2Spread)).toBe(true);
+      }
+    }
+    expect(p.assumptions.length).toBeGreaterThan(3);
+  });
+});
