@@ -16,6 +16,9 @@ const BUCKETS = 32768;
 const BINADE_OFFSET = 1100;
 const BINADES = 2200;
 
+/** elements per block of the fast path: a block that touches a bucket a boundary cuts is classified again, alone */
+const BLOCK = 4096;
+
 const SLOW_IMPURE = 1;
 const SLOW_SPECIAL = 2;
 
@@ -29,6 +32,15 @@ export interface BucketPlan {
   classes: Uint8Array;
   /** per bucket: its binade (for non-special buckets) */
   binade: Int16Array;
+  /**
+   * per bucket and target, for buckets a boundary cuts: the smallest magnitude whose class differs from `classes`
+   * (Infinity when this target has no boundary in the bucket; NaN when it has two, and the rounding decides)
+   */
+  cuts: Float64Array;
+  /** per bucket and target: the class from `cuts` upward */
+  above: Uint8Array;
+  /** the buckets a boundary cuts, ascending */
+  impure: Int32Array;
 }
 
 const plans = new WeakMap<readonly CastTarget[], Map<number, BucketPlan>>();
@@ -73,6 +85,7 @@ function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
   // the buckets of normal inputs are contiguous, from field 1 to field topField − 1
   const first = 1 << fractionBits;
   const last = (topField << fractionBits) - 1;
+  const cutsFor: [number, number][] = [];
   for (let t = 0; t < T; t++) {
     const target = targets[t]!;
     const classAt = (b: number) => target.classify(edge(b, false));
@@ -97,10 +110,44 @@ function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
     // a bucket is cut by a boundary exactly when its largest magnitude has another class than its smallest
     for (let b = first; b <= last; b++) {
       const next = b < last ? classes[(b + 1) * T + t] : -1;
-      if (next !== classes[b * T + t] && target.classify(edge(b, true)) !== classes[b * T + t]) slow[b] = SLOW_IMPURE;
+      if (next !== classes[b * T + t] && target.classify(edge(b, true)) !== classes[b * T + t]) {
+        slow[b] = SLOW_IMPURE;
+        cutsFor.push([b, t]);
+      }
     }
   }
-  return { width, targets, slow, classes, binade };
+  const cuts = new Float64Array(BUCKETS * T).fill(Infinity);
+  const above = Uint8Array.from(classes);
+  for (const [b, t] of cutsFor) {
+    const target = targets[t]!;
+    const below = classes[b * T + t]!;
+    // bisect the bit patterns of the bucket (monotone in the magnitude) for the first one of another class
+    const span = width === 32 ? 0xffff : 2 ** 48 - 1;
+    const valueAt = (offset: number): number => {
+      if (width === 32) {
+        u32[0] = (b << 16) + offset;
+        return f32[0]!;
+      }
+      w64[1] = (b << 16) + Math.floor(offset / 2 ** 32);
+      w64[0] = offset % 2 ** 32;
+      return f64[0]!;
+    };
+    let lo = 0;
+    let hi = span;
+    while (hi - lo > 1) {
+      const mid = Math.floor((lo + hi) / 2);
+      if (target.classify(valueAt(mid)) === below) lo = mid;
+      else hi = mid;
+    }
+    const cut = valueAt(hi);
+    const cutClass = target.classify(cut);
+    // a second boundary inside one bucket (not possible for headroom's formats) falls back to the rounding itself
+    const single = target.classify(valueAt(span)) === cutClass;
+    cuts[b * T + t] = single ? cut : NaN;
+    above[b * T + t] = cutClass;
+  }
+  const impure = Int32Array.from(new Set(cutsFor.map(([b]) => b))).sort();
+  return { width, targets, slow, classes, binade, cuts, above, impure };
 }
 
 /** Per-target cast counts of one tensor. */
@@ -146,6 +193,7 @@ export class TensorAccumulator {
 
   constructor(private readonly plan: BucketPlan) {
     this.classCounts = new Float64Array(plan.targets.length * CAST_CLASS_COUNT);
+    this.impureSeen = new Uint32Array(plan.impure.length);
   }
 
   /** Feed the next values (binary32 values for a width-32 plan, binary64 for width 64). */
@@ -153,6 +201,8 @@ export class TensorAccumulator {
     this.elements += values.length;
     if (values instanceof Float32Array) {
       if (this.plan.width !== 32) throw new TypeError("a binary64 bucket plan was given binary32 values");
+      const blocks = Math.ceil(values.length / BLOCK);
+      if (this.pendingBlocks.length < blocks) this.pendingBlocks = new Int32Array(blocks);
       this.add32(values);
     } else {
       if (this.plan.width !== 64) throw new TypeError("a binary32 bucket plan was given binary64 values");
@@ -160,8 +210,117 @@ export class TensorAccumulator {
     }
   }
 
+  /** per-chunk counts for the fast path; all zero between calls */
+  private readonly chunkHist = new Uint32Array(BUCKETS);
+  /** counts of the impure buckets at the end of the last block */
+  private readonly impureSeen: Uint32Array;
+  /** starts of the blocks of the current chunk that touched impure buckets */
+  private pendingBlocks = new Int32Array(0);
+
+  /**
+   * binary32 values. The fast pass counts buckets, squares and extremes with no per-element branch; the chunk then
+   * takes the exact per-element path only if it holds zeros, binary32 subnormals, infinities or NaNs (seen from its
+   * extremes), and a short extra pass classifies the elements of buckets a boundary cuts, when any were seen.
+   */
   private add32(values: Float32Array): void {
-    const bits = new Uint32Array(values.buffer, values.byteOffset, values.length);
+    const n = values.length;
+    if (n === 0) return;
+    const bits = new Int32Array(values.buffer, values.byteOffset, n);
+    const chunk = this.chunkHist;
+    const impure = this.plan.impure;
+    const seen = this.impureSeen;
+    seen.fill(0);
+    let pending = 0;
+    let sum0 = 0;
+    let sum1 = 0;
+    let maxU = 0;
+    let minU = 0x7fffffff;
+    for (let start = 0; start < n; start += BLOCK) {
+      const end = Math.min(n, start + BLOCK);
+      let i = start;
+      for (; i + 1 < end; i += 2) {
+        const u0 = bits[i]! & 0x7fffffff;
+        const u1 = bits[i + 1]! & 0x7fffffff;
+        chunk[u0 >> 16] = chunk[u0 >> 16]! + 1;
+        chunk[u1 >> 16] = chunk[u1 >> 16]! + 1;
+        maxU = u0 > maxU ? u0 : maxU;
+        maxU = u1 > maxU ? u1 : maxU;
+        minU = u0 < minU ? u0 : minU;
+        minU = u1 < minU ? u1 : minU;
+        const x0 = values[i]!;
+        const x1 = values[i + 1]!;
+        sum0 += x0 * x0;
+        sum1 += x1 * x1;
+      }
+      if (i < end) {
+        const u = bits[i]! & 0x7fffffff;
+        chunk[u >> 16] = chunk[u >> 16]! + 1;
+        maxU = u > maxU ? u : maxU;
+        minU = u < minU ? u : minU;
+        const x = values[i]!;
+        sum0 += x * x;
+      }
+      // a block that put anything into a bucket a boundary cuts is classified element by element below
+      let hit = false;
+      for (let k = 0; k < impure.length; k++) {
+        const c = chunk[impure[k]!]!;
+        if (c !== seen[k]) {
+          seen[k] = c;
+          hit = true;
+        }
+      }
+      if (hit) this.pendingBlocks[pending++] = start;
+    }
+    const lowBucket = minU >> 16;
+    const highBucket = maxU >> 16;
+    // zero and binary32 subnormals sit below the smallest normal pattern, infinities and NaNs from 0x7f800000 up
+    if (minU < 0x00800000 || maxU >= 0x7f800000) {
+      chunk.fill(0, lowBucket, highBucket + 1);
+      this.exact32(values, bits);
+      return;
+    }
+    const hist = this.hist;
+    for (let b = lowBucket; b <= highBucket; b++) {
+      const c = chunk[b]!;
+      if (c !== 0) {
+        hist[b] = hist[b]! + c;
+        chunk[b] = 0;
+      }
+    }
+    for (let p = 0; p < pending; p++) {
+      const start = this.pendingBlocks[p]!;
+      this.impurePass32(values, bits, start, Math.min(n, start + BLOCK));
+    }
+    this.sumOfSquares += sum0 + sum1;
+    const extremes = new Float32Array(Int32Array.of(maxU, minU).buffer);
+    if (extremes[0]! > this.maxAbs) this.maxAbs = extremes[0]!;
+    if (extremes[1]! < this.minNonzero) this.minNonzero = extremes[1]!;
+  }
+
+  /** Classify the elements of values[start, end) that fall in buckets a boundary cuts (already in the histogram). */
+  private impurePass32(values: Float32Array, bits: Int32Array, start: number, end: number): void {
+    const slow = this.plan.slow;
+    for (let i = start; i < end; i++) {
+      const b = (bits[i]! & 0x7fffffff) >> 16;
+      if (slow[b] === SLOW_IMPURE) this.classifyImpure(Math.abs(values[i]!), b);
+    }
+  }
+
+  /** Count one magnitude of an impure bucket into the class counts, by the bucket's cut points. */
+  private classifyImpure(a: number, b: number): void {
+    const { targets, cuts, above, classes } = this.plan;
+    const T = targets.length;
+    const counts = this.classCounts;
+    for (let t = 0; t < T; t++) {
+      const k = b * T + t;
+      const cut = cuts[k]!;
+      const cls = cut !== cut ? targets[t]!.classify(a) : a >= cut ? above[k]! : classes[k]!;
+      counts[t * CAST_CLASS_COUNT + cls]! += 1;
+    }
+  }
+
+  /** The exact per-element path for chunks with zeros, subnormal inputs, infinities or NaNs. */
+  private exact32(values: Float32Array, bits: Int32Array): void {
     const hist = this.hist;
     const slow = this.plan.slow;
     const n = values.length;
@@ -175,7 +334,7 @@ export class TensorAccumulator {
         zeros++;
         continue;
       }
-      const b = u >>> 16;
+      const b = u >> 16;
       if (slow[b] !== 0) {
         this.slowValue(values[i]!, b);
         continue;
@@ -189,9 +348,9 @@ export class TensorAccumulator {
     this.zeros += zeros;
     this.sumOfSquares += sum;
     if (maxU !== 0) {
-      const f = new Float32Array(new Uint32Array([maxU, minU]).buffer);
-      if (f[0]! > this.maxAbs) this.maxAbs = f[0]!;
-      if (f[1]! < this.minNonzero) this.minNonzero = f[1]!;
+      const extremes = new Float32Array(Int32Array.of(maxU, minU).buffer);
+      if (extremes[0]! > this.maxAbs) this.maxAbs = extremes[0]!;
+      if (extremes[1]! < this.minNonzero) this.minNonzero = extremes[1]!;
     }
   }
 
@@ -237,12 +396,13 @@ export class TensorAccumulator {
       for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
       return;
     }
-    for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
+    const a = Math.abs(x);
+    if (this.plan.slow[bucket] === SLOW_IMPURE) this.classifyImpure(a, bucket);
+    else for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
     if (!Number.isFinite(x)) {
       this.infinities++;
       return;
     }
-    const a = Math.abs(x);
     this.sumOfSquares += x * x;
     if (a > this.maxAbs) this.maxAbs = a;
     if (a < this.minNonzero) this.minNonzero = a;

@@ -60,36 +60,19 @@ export class ChannelAccumulator {
   /** Feed values whose first element has storage index `first`. Non-finite values are left out. */
   add(values: Float32Array | Float64Array, first: number): void {
     const fastCount = this.fastCount;
-    const fastSum = this.fastSum;
-    const fastMax = this.fastMax;
-    if (fastCount === 0) return;
+    if (fastCount === 0 || values.length === 0) return;
     let slow = Math.floor(first / fastCount);
     let fast = first - slow * fastCount;
-    let slowSum = 0;
-    let slowMax = 0;
-    const n = values.length;
-    for (let i = 0; i < n; i++) {
-      const x = values[i]!;
-      const a = Math.abs(x);
-      if (a < Infinity) {
-        const s = a * a;
-        fastSum[fast]! += s;
-        if (a > fastMax[fast]!) fastMax[fast] = a;
-        slowSum += s;
-        if (a > slowMax) slowMax = a;
-      }
-      if (++fast === fastCount) {
-        this.slowSum[slow]! += slowSum;
-        if (slowMax > this.slowMax[slow]!) this.slowMax[slow] = slowMax;
-        slowSum = 0;
-        slowMax = 0;
+    let done = 0;
+    while (done < values.length) {
+      const length = Math.min(fastCount - fast, values.length - done);
+      addRun(values, done, length, fast, this.fastSum, this.fastMax, this.slowSum, this.slowMax, slow);
+      done += length;
+      fast += length;
+      if (fast === fastCount) {
         fast = 0;
         slow++;
       }
-    }
-    if (fast !== 0) {
-      this.slowSum[slow]! += slowSum;
-      if (slowMax > this.slowMax[slow]!) this.slowMax[slow] = slowMax;
     }
   }
 
@@ -113,7 +96,7 @@ function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float
   let maxOverRmsChannel = 0;
   for (let i = 0; i < n; i++) {
     if (rms[i]! > rms[loudest]!) loudest = i;
-    const ratio = rms[i]! > 0 ? maxes[i]! / rms[i]! : 0;
+    const ratio = rms[i]! > 0 ? Math.sqrt(maxes[i]!) / rms[i]! : 0;
     if (ratio > maxOverRms) {
       maxOverRms = ratio;
       maxOverRmsChannel = i;
@@ -132,4 +115,37 @@ function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float
     maxOverRms,
     maxOverRmsChannel,
   };
+}
+
+/**
+ * One run of consecutive elements along the fast axis (part of one row in C order): squares and largest squares go to
+ * each element's fast-axis channel and, summed, to the run's slow-axis channel. Maxima are kept as squares (no abs).
+ */
+function addRun(
+  values: Float32Array | Float64Array,
+  start: number,
+  length: number,
+  fast: number,
+  fastSum: Float64Array,
+  fastMaxSquare: Float64Array,
+  slowSum: Float64Array,
+  slowMaxSquare: Float64Array,
+  slow: number,
+): void {
+  let sum = 0;
+  let maxSquare = 0;
+  for (let i = 0; i < length; i++) {
+    const x = values[start + i]!;
+    const s = x * x;
+    // infinities and NaNs are left out (NaN fails the comparison too)
+    if (s < Infinity) {
+      const c = fast + i;
+      fastSum[c] = fastSum[c]! + s;
+      fastMaxSquare[c] = s > fastMaxSquare[c]! ? s : fastMaxSquare[c]!;
+      sum += s;
+      maxSquare = s > maxSquare ? s : maxSquare;
+    }
+  }
+  slowSum[slow] = slowSum[slow]! + sum;
+  if (maxSquare > slowMaxSquare[slow]!) slowMaxSquare[slow] = maxSquare;
 }
