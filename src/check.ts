@@ -4,7 +4,17 @@
  */
 import { buildGraph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
-import { judgePrediction, type CheckOptions, type CheckResult } from "./risk/index.js";
+import { FORMATS } from "./formats/index.js";
+import type { Prediction } from "./magnitude/types.js";
+import {
+  judgePrediction,
+  limitsFor,
+  lossScaleCurves,
+  type CheckOptions,
+  type CheckResult,
+  type LossScaleWindowSummary,
+} from "./risk/index.js";
+import { lossScaleWindow } from "./scale/window.js";
 import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 
@@ -29,7 +39,37 @@ export function check(spec: NetworkSpec, options: CheckOptions = {}): CheckResul
   const built = buildGraph(spec);
   if (!built.ok) throw new CheckInputError(built.issues);
   const planned = { ...spec, precision: plan };
-  return judgePrediction(planned, predict(built.graph, planned), options);
+  const prediction = predict(built.graph, planned);
+  const window = options.lossScale === undefined && plan.lossScale === undefined ? searchLossScale(plan, prediction) : undefined;
+  return judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
+}
+
+/**
+ * Whether the plan's gradients need a loss scale: held in a format with a narrow exponent range (binary16, the
+ * 8-bit formats) and, for 8-bit formats, without per-tensor scale factors. bfloat16 and binary32 share binary32's
+ * range and are trained unscaled (Kalamkar et al. 2019, from memory, unconfirmed; SCIENCE.md §1.2).
+ */
+export function needsLossScale(plan: PrecisionPlan): boolean {
+  const format = FORMATS[plan.gradients];
+  if (format.exponentBits > 5) return false;
+  return !(format.bits === 8 && plan.scaling !== "none");
+}
+
+/** The loss-scale window for the plan's gradient format (src/scale/window.ts, its default budget and tolerance). */
+export function searchLossScale(plan: PrecisionPlan, prediction: Prediction): LossScaleWindowSummary | undefined {
+  if (!needsLossScale(plan)) return undefined;
+  const curves = lossScaleCurves(prediction.tensors, limitsFor(plan, plan.gradients));
+  if (curves.length === 0) return undefined;
+  const window = lossScaleWindow(curves);
+  return {
+    format: plan.gradients,
+    lowestLog2: window.lowestLog2,
+    highestLog2: window.highestLog2,
+    pickLog2: window.pickLog2,
+    empty: window.empty,
+    upperEdgeSetBy: window.upperEdgeSetBy,
+    lowerEdgeSetBy: window.lowerEdgeSetBy,
+  };
 }
 
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {

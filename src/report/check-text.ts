@@ -2,7 +2,7 @@
  * The terminal rendering of a check: a verdict per format with its reasons, the tensors at risk, the operation
  * hazards, the assumptions and the caution. Pure: a CheckResult in, a string out.
  */
-import type { CheckResult, HazardCheck, TensorCheck, TensorFormatRisk, Verdict } from "../risk/index.js";
+import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorFormatRisk, Verdict } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -45,6 +45,39 @@ export function describePlan(plan: PrecisionPlan): string {
     `accumulation ${plan.accumulate}`,
   ];
   return parts.join(", ");
+}
+
+/** The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. */
+export function describeLossScale(scale: AppliedLossScale): string {
+  const window = scale.window;
+  const power = (k: number | null): string => (k === null ? "none" : `2^${k}`);
+  switch (scale.origin) {
+    case "plan":
+      return `loss scale: ${formatValue(scale.value)} (from the plan).`;
+    case "option":
+      return `loss scale: ${formatValue(scale.value)} (from the command line).`;
+    case "recommended":
+      return (
+        `loss scale: none in the plan; judged with the recommended 2^${window?.pickLog2} = ${formatValue(scale.value)}, ` +
+        `inside the window ${power(window?.lowestLog2 ?? null)} to ${power(window?.highestLog2 ?? null)}` +
+        (window?.lowerEdgeSetBy ? ` (below it ${window.lowerEdgeSetBy} flushes` : " (") +
+        (window?.upperEdgeSetBy ? `${window?.lowerEdgeSetBy ? "; " : ""}above it ${window.upperEdgeSetBy} overflows)` : ")") +
+        "."
+      );
+    case "none":
+      if (window === undefined) return "loss scale: none given, gradients judged unscaled.";
+      return (
+        `loss scale: none given, and no static loss scale fits the ${window.format} gradients (` +
+        (window.lowestLog2 === null
+          ? `${window.lowerEdgeSetBy ?? "a gradient"} flushes even at the largest scale searched`
+          : `${window.lowerEdgeSetBy ?? "a gradient"} needs at least 2^${window.lowestLog2} not to flush`) +
+        ", " +
+        (window.highestLog2 === null
+          ? `${window.upperEdgeSetBy ?? "a gradient"} overflows even at the smallest scale searched`
+          : `${window.upperEdgeSetBy ?? "a gradient"} allows at most 2^${window.highestLog2} not to overflow`) +
+        "); gradients judged unscaled."
+      );
+  }
 }
 
 /** Word-wrap text to `width` columns; continuation lines start with `indent`. */
@@ -158,14 +191,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   let out = "";
   out += style.role("heading", `headroom check: ${result.spec.name}`) + ` (${result.spec.source})\n`;
   out += wrap(`plan ${result.plan.name}: ${describePlan(result.plan)}.`, width, "", "  ");
-  out += wrap(
-    result.lossScale.origin === "none"
-      ? "loss scale: none given, gradients judged unscaled."
-      : `loss scale: ${formatValue(result.lossScale.value)} (from the ${result.lossScale.origin === "plan" ? "plan" : "command line"}).`,
-    width,
-    "",
-    "  ",
-  );
+  out += wrap(describeLossScale(result.lossScale), width, "", "  ");
 
   out += "\n" + style.role("strong", "Verdict per format") + "\n";
   const formatWidth = Math.max(...result.formats.map((f) => f.format.length));
@@ -218,7 +244,17 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   else out += hazardText;
 
   out += "\n" + style.role("strong", "Assumptions") + "\n";
-  for (const assumption of result.assumptions) out += wrap(assumption, width, "  - ", "    ");
+  if (all) {
+    for (const assumption of result.assumptions) out += wrap(assumption, width, "  - ", "    ");
+  } else {
+    out += wrap(
+      `${result.assumptions.length} assumptions stand behind these numbers (--all or --json lists them); the first: ` +
+        (result.assumptions[0] ?? "none"),
+      width,
+      "  ",
+      "  ",
+    );
+  }
   out += "\n" + wrap(result.caution, width, "", "");
   return out;
 }

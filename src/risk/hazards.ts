@@ -249,7 +249,7 @@ function normSumOfSquares(site: HazardSite, context: HazardContext): Draft[] {
       grading: overflowGrading(context.thresholds),
       capAtRisk: onlyIfNotWidened,
       sentence: (verdict: Verdict) =>
-        `The sum of squares over ${site.terms} features in ${site.layer} overflows ${limits.format} once the ` +
+        `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${limits.format} once the ` +
         `input rms exceeds ${plainNumber(criticalRms)} (predicted ${plainNumber(profile.rms)}); probability ` +
         `${plainNumber(value)} per step${onlyIfNotWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`,
@@ -325,7 +325,7 @@ function lossValue(site: HazardSite, context: HazardContext): Draft[] {
       grading: overflowGrading(context.thresholds),
       capAtRisk: onlyIfNotWidened,
       sentence: (verdict: Verdict) =>
-        `The loss of ${site.layer} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
+        `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
         `${plainNumber(context.lossScale)}) overflows ${limits.format} when a term exceeds ${plainNumber(critical)} ` +
         `(predicted ${plainNumber(site.input.rms)}); probability ${plainNumber(value)} per step` +
         `${onlyIfNotWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`,

@@ -9,3 +9,4 @@ export * from "./verdict.js";
 export { plainNumber, percent, binades } from "./words.js";
 export * from "./judge.js";
 export * from "./find.js";
+export * from "./curves.js";

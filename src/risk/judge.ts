@@ -36,6 +36,8 @@ export interface CheckOptions {
   ledger?: boolean;
   /** also report each tensor's numbers in the judged formats that do not hold it (off by default) */
   everyFormat?: boolean;
+  /** a loss-scale window searched for the plan (set by `check`); its pick is applied when no scale is given */
+  lossScaleWindow?: LossScaleWindowSummary;
 }
 
 /** The plan entries a format can hold. */
@@ -81,10 +83,29 @@ export interface TensorCheck {
   verdict: Verdict;
 }
 
+/** A window of loss scales found for the plan's gradient format (by src/scale's search), as the check reports it. */
+export interface LossScaleWindowSummary {
+  /** the format the gradients are held in */
+  format: FormatName;
+  /** smallest exponent k whose flushing is tolerated; null when none is */
+  lowestLog2: number | null;
+  /** largest exponent k whose overflow risk is within budget; null when none is */
+  highestLog2: number | null;
+  /** the recommended exponent; null when the window is empty */
+  pickLog2: number | null;
+  empty: boolean;
+  /** the tensor whose overflow sets the upper edge, and the one whose flushing sets the lower edge */
+  upperEdgeSetBy: string | null;
+  lowerEdgeSetBy: string | null;
+}
+
 /** The loss scale the check applied to gradients, and where it came from. */
 export interface AppliedLossScale {
   value: number;
-  origin: "plan" | "option" | "none";
+  /** plan: the spec's plan; option: the caller; recommended: the pick of the window below; none: 1 */
+  origin: "plan" | "option" | "recommended" | "none";
+  /** present when the check searched for a loss scale (the plan gives none and gradients are in a narrow format) */
+  window?: LossScaleWindowSummary;
 }
 
 /** Everything `check` found: plain JSON-able data (documented field by field in README.md). */
@@ -167,7 +188,10 @@ function appliedLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLo
     return { value: options.lossScale, origin: "option" };
   }
   if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
-  return { value: 1, origin: "none" };
+  const window = options.lossScaleWindow;
+  if (window === undefined) return { value: 1, origin: "none" };
+  if (window.pickLog2 !== null) return { value: 2 ** window.pickLog2, origin: "recommended", window };
+  return { value: 1, origin: "none", window };
 }
 
 function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {
@@ -380,7 +404,16 @@ function checkAssumptions(
 ): string[] {
   const notes: string[] = [];
   if (lossScale.origin === "none") {
-    notes.push("The plan gives no loss scale, so gradients are judged unscaled (loss scale 1).");
+    notes.push(
+      lossScale.window?.empty
+        ? `No static loss scale keeps every ${lossScale.window.format} gradient both below the overflow budget and above the flush tolerance, so gradients are judged unscaled (loss scale 1).`
+        : "The plan gives no loss scale, so gradients are judged unscaled (loss scale 1).",
+    );
+  } else if (lossScale.origin === "recommended") {
+    notes.push(
+      `The plan gives no loss scale; gradients and the loss are judged multiplied by the recommended 2^${lossScale.window?.pickLog2} = ${plainNumber(lossScale.value)}, ` +
+        `picked inside the window of powers of two where no ${lossScale.window?.format} gradient overflows beyond the risk budget or flushes beyond the tolerance (src/scale defaults).`,
+    );
   } else {
     notes.push(`Gradients and the loss are judged multiplied by the loss scale ${plainNumber(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}).`);
   }

@@ -17,8 +17,12 @@ import { binades, percent, plainNumber, when } from "./words.js";
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
 export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
 
-/** Roles the loss scale multiplies: the backward pass runs on the scaled loss (Micikevicius et al. 2018 §3.2). */
-export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient", "loss"];
+/**
+ * Roles the loss scale multiplies: the backward pass runs on the scaled loss (Micikevicius et al. 2018 §3.2).
+ * The loss value itself is judged unscaled: the product S·L is usually formed in binary32 (common practice);
+ * the loss-value hazard judges S·L in the plan's formats.
+ */
+export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
 
 /** The worse of the start and end numbers, and when each is worse. */
 export interface WorstRisk extends ProfileRisk {

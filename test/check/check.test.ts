@@ -1,6 +1,6 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
-import { check } from "../../src/check.js";
+import { check, needsLossScale } from "../../src/check.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 import type { CheckResult } from "../../src/risk/index.js";
@@ -80,5 +80,36 @@ describe("linear chains of 100 layers (1.5^100 = 4.0656e17, 0.8^100 = 2.037e-10;
     expect(kinds(half, "binary16")).toEqual(expect.arrayContaining(["flushed-values"]));
     expect(kinds(brain, "bfloat16")).not.toContain("flushed-values");
     expect(kinds(brain, "bfloat16")).not.toContain("gradient-energy-flushed");
+  });
+});
+
+describe("the recommended loss scale (Micikevicius et al. 2018 §3.2: choose S so that S·max|g| < 65504)", () => {
+  it("when the plan gives none, the check searches the window and judges with its pick", () => {
+    // the 0.8 chain without its loss scale: gradients span 0.8^100 ≈ 2^-32 from the top layer to the bottom one
+    const spec = load(`${HAZARDS}/linear-chain-shrink.yaml`, (t) => t.replace(/^  loss-scale: 1\n/m, ""));
+    const result = check(spec);
+    const window = result.lossScale.window;
+    expect(result.lossScale.origin).toBe("recommended");
+    expect(window?.empty).toBe(false);
+    expect(window?.pickLog2).not.toBeNull();
+    expect(window!.pickLog2!).toBeGreaterThanOrEqual(window!.lowestLog2!);
+    expect(window!.pickLog2!).toBeLessThanOrEqual(window!.highestLog2!);
+    expect(result.lossScale.value).toBe(2 ** window!.pickLog2!);
+    // with the pick no gradient of the chain fails on flushing in binary16 (the forward signal, which the loss
+    // scale does not touch, still does); unscaled, most of them do
+    const gradientFlushFailures = (r: CheckResult) =>
+      r.formats[0]?.findings.filter(
+        (f) => (f.kind === "flushed-values" || f.kind === "gradient-energy-flushed") && f.subject.includes("-gradient") && f.severity === "fails",
+      ) ?? [];
+    expect(gradientFlushFailures(result)).toEqual([]);
+    expect(gradientFlushFailures(check(spec, { lossScale: 1 })).length).toBeGreaterThan(10);
+  });
+
+  it("searches only for narrow gradient formats: binary16 yes, bfloat16 no, e5m2 with per-tensor scaling no", () => {
+    const plan = load(`${HAZARDS}/linear-chain-shrink.yaml`).precision;
+    expect(needsLossScale(plan)).toBe(true);
+    expect(needsLossScale({ ...plan, gradients: "bfloat16" })).toBe(false);
+    expect(needsLossScale({ ...plan, gradients: "e5m2", scaling: "tensor" })).toBe(false);
+    expect(needsLossScale({ ...plan, gradients: "e5m2", scaling: "none" })).toBe(true);
   });
 });
