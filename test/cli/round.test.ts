@@ -115,3 +115,14 @@ describe("headroom round (the built binary)", () => {
     expect(runCli(["round", "-", "--to", "binary16"], { input: "" }).stdout).toBe("");
   });
 });
+
+describe("the README's round example", () => {
+  it("shows what the command prints", async () => {
+    const { readFileSync } = await import("node:fs");
+    const { ROOT } = await import("../helpers/run.js");
+    const readme = readFileSync(`${ROOT}README.md`, "utf8");
+    const run = runCli(["round", "65519", "65520", "1e-8", "--to", "binary16,bfloat16"]);
+    expect(readme).toContain("npx headroom round 65519 65520 1e-8 --to binary16,bfloat16");
+    expect(readme).toContain("```\n" + run.stdout + "```");
+  });
+});
