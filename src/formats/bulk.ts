@@ -6,18 +6,30 @@
 import type { Format } from "./model.js";
 import { binadeOf, decode, encodeRounded, formatTables, nanCode, roundDetailed, roundTo, type RoundOptions } from "./round.js";
 
-/** Typed arrays of values the kernels accept. */
+/**
+ * Typed arrays of values the kernels accept.
+ * @example const data: FloatArray = new Float32Array(1024);
+ */
 export type FloatArray = Float64Array | Float32Array;
 
-/** Typed arrays of raw bit patterns: Uint16Array for 16-bit formats, Uint8Array for 8-bit ones. */
+/**
+ * Typed arrays of raw bit patterns: Uint16Array for 16-bit formats, Uint8Array for 8-bit ones.
+ * @example const codes: CodeArray = new Uint16Array(1024); // binary16 or bfloat16 patterns
+ */
 export type CodeArray = Uint16Array | Uint8Array;
 
 // the views below read the high word of a binary64 at index 2i + 1, which holds on little-endian machines only
 const LITTLE_ENDIAN = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
 
-/** Index of binade e (floor(log2|x|) = e) in a binade histogram: e + BINADE_OFFSET. */
+/**
+ * Index of binade e (floor(log2|x|) = e) in a binade histogram: e + BINADE_OFFSET.
+ * @example binadeHistogram(Float64Array.of(0.75)).counts[-1 + BINADE_OFFSET] // => 1
+ */
 export const BINADE_OFFSET = 1074;
-/** Length of a binade histogram: every binary64 binade, from 2^-1074 to 2^1023. */
+/**
+ * Length of a binade histogram: every binary64 binade, from 2^-1074 to 2^1023.
+ * @example new Float64Array(BINADE_COUNT) // one bin per binary64 binade
+ */
 export const BINADE_COUNT = 2098;
 
 function overflowValue(format: Format, options: RoundOptions | undefined): number {
@@ -131,6 +143,7 @@ function addOne(counts: Float64Array, index: number): void {
  * What happens to the elements of an array when stored in a format, counted in one pass. The first nine
  * counts partition `total`: zeros + flushed + subnormal + normal + overflowed + saturated + infinities + nans.
  * Counts are float64 (exact to 2^53) so multi-gigabyte scans accumulate without wrapping.
+ * @example countClasses(FORMATS.e4m3, Float64Array.of(500)).saturated // => 1
  */
 export interface ClassCounts {
   total: number;
@@ -346,7 +359,10 @@ function countGeneric(format: Format, data: FloatArray, options: RoundOptions | 
   }
 }
 
-/** Counts of binades over a format-free scan (see binadeHistogram). */
+/**
+ * Counts of binades over a format-free scan (see binadeHistogram).
+ * @example binadeHistogram(Float32Array.of(0, 2)).zeros // => 1
+ */
 export interface BinadeHistogram {
   total: number;
   zeros: number;
@@ -414,7 +430,10 @@ export function binadeHistogram(data: FloatArray, into?: BinadeHistogram): Binad
 const decodeTables64 = new WeakMap<Format, Float64Array>();
 const decodeTables32 = new WeakMap<Format, Float32Array>();
 
-/** Every code's value, for formats of 16 bits or fewer (65,536 or 256 entries, built once). */
+/**
+ * Every code's value, for formats of 16 bits or fewer (65,536 or 256 entries, built once).
+ * @example decodeTable(FORMATS.e4m3)[0x7e] // => 448
+ */
 export function decodeTable(format: Format): Float64Array {
   let table = decodeTables64.get(format);
   if (table === undefined) {

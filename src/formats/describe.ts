@@ -4,7 +4,10 @@
 import type { Format } from "./model.js";
 import { encodeBigInt, formatCode, roundDetailed, type RoundOptions, type ValueClass } from "./round.js";
 
-/** The outcome of storing one binary64 value in one format. */
+/**
+ * The outcome of storing one binary64 value in one format.
+ * @example describeRounding(FORMATS.e4m3, 465).class // => "saturated"
+ */
 export interface RoundingDescription {
   format: Format["name"];
   /** the binary64 input */

@@ -9,10 +9,14 @@ import { FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
  * `saturate`: clamp to ±largest finite. `infinity-or-nan`: ±infinity where the format has one, NaN otherwise
  * (OCP 8-bit floating point specification, saturating and non-saturating conversions).
  * The same union is declared in src/spec/types.ts.
+ * @example roundTo(FORMATS.e4m3, 500, { overflow: "infinity-or-nan" }) // => NaN
  */
 export type OverflowMode = "saturate" | "infinity-or-nan";
 
-/** The overflow modes, in the order the CLI lists them. */
+/**
+ * The overflow modes, in the order the CLI lists them.
+ * @example OVERFLOW_MODES.includes("saturate") // => true
+ */
 export const OVERFLOW_MODES = ["saturate", "infinity-or-nan"] as const satisfies readonly OverflowMode[];
 
 /**
@@ -20,10 +24,14 @@ export const OVERFLOW_MODES = ["saturate", "infinity-or-nan"] as const satisfies
  * `ieee`: infinities (fraction 0) and NaNs (fraction ≠ 0), as in IEEE 754-2019 §3.4.
  * `nan-only`: no infinities; only the all-ones exponent with the all-ones fraction is NaN and every other code
  * in that binade is a finite number (OCP 8-bit floating point specification, E4M3).
+ * @example FORMATS.e4m3.specials // => "nan-only"
  */
 export type SpecialEncoding = "ieee" | "nan-only";
 
-/** The parameters a format is built from. */
+/**
+ * The parameters a format is built from.
+ * @example makeFormat({ ...parameters, fractionBits: 2 }) // a narrower variant
+ */
 export interface FormatParameters {
   name: FormatName;
   exponentBits: number;
@@ -41,7 +49,10 @@ export interface FormatParameters {
   source: string;
 }
 
-/** A floating-point format: its parameters and every limit derived from them. All values are exact. */
+/**
+ * A floating-point format: its parameters and every limit derived from them. All values are exact.
+ * @example FORMATS.binary16.overflowThreshold // => 65520
+ */
 export interface Format {
   readonly name: FormatName;
   readonly exponentBits: number;

@@ -4,13 +4,22 @@
  */
 import { pow2, type Format, type OverflowMode } from "./model.js";
 
-/** How a value is rounded onto the format's grid. */
+/**
+ * How a value is rounded onto the format's grid.
+ * @example roundTo(FORMATS.binary16, 1.0009, { mode: "toward-zero" }) // => 1
+ */
 export type RoundingMode = "nearest-even" | "toward-zero" | "stochastic";
 
-/** The rounding modes, in the order the CLI lists them. */
+/**
+ * The rounding modes, in the order the CLI lists them.
+ * @example ROUNDING_MODES[0] // => "nearest-even"
+ */
 export const ROUNDING_MODES = ["nearest-even", "toward-zero", "stochastic"] as const satisfies readonly RoundingMode[];
 
-/** Options shared by every rounding function. */
+/**
+ * Options shared by every rounding function.
+ * @example roundTo(FORMATS.bfloat16, 1e-39, { flushSubnormals: true }) // => 0
+ */
 export interface RoundOptions {
   /** default "nearest-even" (IEEE 754-2019 roundTiesToEven) */
   mode?: RoundingMode;
@@ -25,10 +34,14 @@ export interface RoundOptions {
 /**
  * The class of a rounded result. "saturated" means a value beyond the range was clamped to ±maxFinite;
  * "zero" covers both exact zeros and nonzero values that flushed (see `isFlushed`).
+ * @example classify(FORMATS.binary16, 1e-6) // => "subnormal"
  */
 export type ValueClass = "zero" | "subnormal" | "normal" | "infinite" | "nan" | "saturated";
 
-/** The value classes, in increasing order of trouble. */
+/**
+ * The value classes, in increasing order of trouble.
+ * @example VALUE_CLASSES.indexOf("nan") // => 5
+ */
 export const VALUE_CLASSES = ["zero", "subnormal", "normal", "saturated", "infinite", "nan"] as const satisfies readonly ValueClass[];
 
 // --------------------------------------------------------------------------------------------------------------
@@ -37,7 +50,10 @@ export const VALUE_CLASSES = ["zero", "subnormal", "normal", "saturated", "infin
 const scratch = new Float64Array(1);
 const scratchWords = new Uint32Array(scratch.buffer);
 
-/** floor(log2 a) for a finite a > 0, exact (read from the exponent field; binary64 subnormals via the leading zeros). */
+/**
+ * floor(log2 a) for a finite a > 0, exact (read from the exponent field; binary64 subnormals via the leading zeros).
+ * @example binadeOf(0.75) // => -1
+ */
 export function binadeOf(a: number): number {
   scratch[0] = a;
   const high = scratchWords[1] as number;
@@ -57,7 +73,10 @@ function signBit(x: number): boolean {
 // --------------------------------------------------------------------------------------------------------------
 // per-format constants for the kernels
 
-/** Tables the rounding kernels read; built once per format record. */
+/**
+ * Tables the rounding kernels read; built once per format record.
+ * @example formatTables(FORMATS.binary16).magic64.length // => 2048
+ */
 export interface FormatTables {
   /**
    * Indexed by a binary64 exponent field: the constant M = 1.5·2^52·q, where q is the format's grid spacing in
@@ -74,7 +93,10 @@ export interface FormatTables {
 
 const tableCache = new WeakMap<Format, FormatTables>();
 
-/** The kernel tables of a format (built on first use, then cached). */
+/**
+ * The kernel tables of a format (built on first use, then cached).
+ * @example formatTables(FORMATS.bfloat16).magic64[1023] // => 1.5 * 2 ** 45 (spacing 2^-7 at 1)
+ */
 export function formatTables(format: Format): FormatTables {
   let tables = tableCache.get(format);
   if (tables === undefined) {
@@ -221,7 +243,10 @@ export function classify(format: Format, x: number, options?: RoundOptions): Val
   return CLASS_NAMES[lastClass] as ValueClass;
 }
 
-/** A rounded value with its class and whether a nonzero input became zero. */
+/**
+ * A rounded value with its class and whether a nonzero input became zero.
+ * @example roundDetailed(FORMATS.binary16, 65520).class // => "infinite"
+ */
 export interface RoundResult {
   value: number;
   class: ValueClass;
@@ -365,7 +390,10 @@ function checkCodeRange(format: Format, code: number): void {
   }
 }
 
-/** The canonical NaN code: positive, quiet (top fraction bit set) for IEEE formats; S.1111.111 for e4m3. */
+/**
+ * The canonical NaN code: positive, quiet (top fraction bit set) for IEEE formats; S.1111.111 for e4m3.
+ * @example nanCode(FORMATS.binary16) // => 0x7e00
+ */
 export function nanCode(format: Format): number {
   const fieldTop = 2 ** format.exponentBits - 1;
   const fraction = format.hasInfinity ? 2 ** (format.fractionBits - 1) : 2 ** format.fractionBits - 1;
@@ -382,7 +410,10 @@ export function encode(format: Format, x: number, options?: RoundOptions): numbe
   return encodeRounded(format, roundCore(format, x, options));
 }
 
-/** Encode a value already on the format's grid (or ±Inf/NaN). */
+/**
+ * Encode a value already on the format's grid (or ±Inf/NaN).
+ * @example encodeRounded(FORMATS.e4m3, 448) // => 0x7e
+ */
 export function encodeRounded(format: Format, r: number): number {
   if (r !== r) return nanCode(format);
   const signValue = signBit(r) ? 2 ** (format.bits - 1) : 0;
