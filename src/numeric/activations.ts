@@ -131,45 +131,62 @@ const GH_MAX_Q = 0.3;
 const GH_NODES = 64;
 // below this q a 32-node rule already meets 1e-12 (the poles move away as 1/√q)
 const GH_SMALL_Q = 0.1;
-const GH_SMALL_NODES = 32;
+const GH_SMALL_NODES = 32; // both Gauss–Hermite sizes must be even (the walk below pairs ±x_i)
 // 10-point panels of the split rule give about 3e-12 relative against mpmath (12 give 5e-13 at 20% more cost)
 const PANEL_NODES = 10;
 
-// Value and derivative of a smooth activation at x, written into out[0] and out[1]; one kernel per
-// activation so that shared work (σ for SiLU, Φ for GELU) is done once per node.
+// Value and derivative of a smooth activation at x ≥ 0, written into out[0] and out[1]; one kernel per
+// activation so that shared work (σ for SiLU, Φ for GELU) is done once per node. The values at −x follow
+// from a symmetry (see `reflection`), so each quadrature node pair ±x costs one kernel call.
 type Kernel = (x: number, out: Float64Array) => void;
-const KERNELS: Record<"gelu" | "silu" | "tanh" | "sigmoid" | "softplus", Kernel> = {
+type SmoothName = "gelu" | "silu" | "tanh" | "sigmoid" | "softplus";
+const KERNELS: Record<SmoothName, Kernel> = {
   gelu: (x, out) => {
     const cdf = normalCdf(x);
     out[0] = x * cdf;
     out[1] = cdf + x * normalPdf(x);
   },
   silu: (x, out) => {
-    const e = Math.exp(-Math.abs(x));
-    const s = x >= 0 ? 1 / (1 + e) : e / (1 + e);
+    const e = Math.exp(-x);
+    const s = 1 / (1 + e);
     out[0] = x * s;
-    out[1] = s + (x * e) / ((1 + e) * (1 + e));
+    out[1] = s + (x * e) * s * s;
   },
   tanh: (x, out) => {
     out[0] = Math.tanh(x);
     out[1] = tanhDerivative(x);
   },
   sigmoid: (x, out) => {
-    const e = Math.exp(-Math.abs(x));
-    out[0] = x >= 0 ? 1 / (1 + e) : e / (1 + e);
-    out[1] = e / ((1 + e) * (1 + e));
+    const e = Math.exp(-x);
+    const s = 1 / (1 + e);
+    out[0] = s;
+    out[1] = e * s * s;
   },
   softplus: (x, out) => {
-    const e = Math.exp(-Math.abs(x));
-    out[0] = Math.max(x, 0) + Math.log1p(e);
-    out[1] = x >= 0 ? 1 / (1 + e) : e / (1 + e);
+    const e = Math.exp(-x);
+    out[0] = x + Math.log1p(e);
+    out[1] = 1 / (1 + e);
   },
+};
+// How φ(−x), φ'(−x) follow from φ(x), φ'(x):
+// "odd": tanh(−x) = −tanh x, tanh' even.
+// "complement": σ(−x) = 1 − σ(x), σ' even.
+// "shift": φ(x) − φ(−x) = x and φ'(x) + φ'(−x) = 1 for φ = x·g(x) with g(−x) = 1 − g(x) (GELU with g = Φ,
+// SiLU with g = σ) and for softplus (ln(1+eˣ) − ln(1+e⁻ˣ) = x).
+const REFLECTION: Record<SmoothName, "odd" | "complement" | "shift"> = {
+  gelu: "shift",
+  silu: "shift",
+  tanh: "odd",
+  sigmoid: "complement",
+  softplus: "shift",
 };
 const kernelOut = new Float64Array(2);
 const sums = new Float64Array(6);
 
 /** Moments of a smooth activation by quadrature, all six in one pass: [E φ, E φ², E φ⁴, E φ', E φ'², E φ'⁴]. */
-function quadratureMoments(kernel: Kernel, q: number): Float64Array {
+function quadratureMoments(name: SmoothName, q: number): Float64Array {
+  const kernel = KERNELS[name];
+  const reflection = REFLECTION[name];
   const out = kernelOut;
   let m1 = 0;
   let m2 = 0;
@@ -177,29 +194,30 @@ function quadratureMoments(kernel: Kernel, q: number): Float64Array {
   let d1 = 0;
   let d2 = 0;
   let d4 = 0;
-  // E[g(√q z)] = (1/√π)·Σ w_i g(√(2q)·x_i) for the Gauss–Hermite weight e^{−x²}; the split rule pairs ±x
+  // Gauss–Hermite: E[g(√q z)] = (1/√π)·Σ w_i g(√(2q)·x_i) for the weight e^{−x²}; its nodes come in pairs
+  // ±x_i (even n), so the upper half is walked. The split rule already lists z > 0 with φ(z) folded in.
   const gh = q <= GH_MAX_Q;
   const { nodes, weights } = gh ? gaussHermite(q <= GH_SMALL_Q ? GH_SMALL_NODES : GH_NODES) : halfLineGaussianRule(q, 2, PANEL_NODES);
   const s = gh ? Math.sqrt(2 * q) : Math.sqrt(q);
   const wScale = gh ? 0.5641895835477563 : 1;
-  const sides = gh ? 1 : 2;
-  for (let i = 0; i < nodes.length; i++) {
+  for (let i = gh ? nodes.length >> 1 : 0; i < nodes.length; i++) {
     const w = (weights[i] as number) * wScale;
-    let x = s * (nodes[i] as number);
-    for (let side = 0; side < sides; side++) {
-      kernel(x, out);
-      const v = out[0] as number;
-      const d = out[1] as number;
-      const v2 = v * v;
-      const dd = d * d;
-      m1 += w * v;
-      m2 += w * v2;
-      m4 += w * v2 * v2;
-      d1 += w * d;
-      d2 += w * dd;
-      d4 += w * dd * dd;
-      x = -x;
-    }
+    const x = s * (nodes[i] as number);
+    kernel(x, out);
+    const v = out[0] as number;
+    const d = out[1] as number;
+    const vm = reflection === "odd" ? -v : reflection === "complement" ? 1 - v : v - x;
+    const dm = reflection === "shift" ? 1 - d : d;
+    const v2 = v * v;
+    const vm2 = vm * vm;
+    const dd = d * d;
+    const dmm = dm * dm;
+    m1 += w * (v + vm);
+    m2 += w * (v2 + vm2);
+    m4 += w * (v2 * v2 + vm2 * vm2);
+    d1 += w * (d + dm);
+    d2 += w * (dd + dmm);
+    d4 += w * (dd * dd + dmm * dmm);
   }
   sums[0] = m1;
   sums[1] = m2;
@@ -226,6 +244,7 @@ const MOMENT_CACHE_LIMIT = 50000;
  * the exact identities E_q[φ'] = ½ (GELU, SiLU, softplus) and E_q[sigmoid] = ½, E_q[tanh] = 0 (odd
  * symmetry); Gauss–Hermite (q ≤ 1.5) or graded Gauss–Legendre (q > 1.5) for the rest, about 1e-12 absolute.
  * Results are memoised. q = 0 gives the values at x = 0 (relu's derivative moments keep their q > 0 limit ½).
+ * q = ∞ gives the limits (tanh → sign, sigmoid → step, GELU/SiLU/softplus → ReLU).
  * `slope` applies to leaky-relu only (default 0.01). q < 0 or NaN gives NaN moments.
  * Throws RangeError for softmax (not elementwise) or an unknown name.
  */
@@ -243,6 +262,19 @@ export function activationMoments(name: ActivationName, q: number, slope: number
   if (cache.size >= MOMENT_CACHE_LIMIT) cache.clear();
   cache.set(q, result);
   return result;
+}
+
+// q → ∞: tanh(√q z) → sign z, σ(√q z) → 1(z > 0), and GELU, SiLU, softplus → max(x, 0), whose derivatives
+// tend to the step 1(x > 0); the derivative moments of tanh and sigmoid vanish.
+function infiniteVarianceLimit(name: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus"): ActivationMoments {
+  switch (name) {
+    case "tanh":
+      return { mean: 0, second: 1, fourth: 1, derivativeMean: 0, derivativeSecond: 0, derivativeFourth: 0, zeroFraction: 0 };
+    case "sigmoid":
+      return { mean: 0.5, second: 0.5, fourth: 0.5, derivativeMean: 0, derivativeSecond: 0, derivativeFourth: 0, zeroFraction: 0 };
+    default:
+      return { mean: Infinity, second: Infinity, fourth: Infinity, derivativeMean: 0.5, derivativeSecond: 0.5, derivativeFourth: 0.5, zeroFraction: 0 };
+  }
 }
 
 function computeMoments(name: ElementwiseActivationName, q: number, slope: number): ActivationMoments {
@@ -283,6 +315,7 @@ function computeMoments(name: ElementwiseActivationName, q: number, slope: numbe
     default:
       break;
   }
+  if (q === Infinity) return infiniteVarianceLimit(name);
   const fn = activationFunction(name);
   if (q === 0) {
     const v = fn.f(0);
@@ -297,7 +330,7 @@ function computeMoments(name: ElementwiseActivationName, q: number, slope: numbe
       zeroFraction: v === 0 ? 1 : 0,
     };
   }
-  const sumsNow = quadratureMoments(KERNELS[name], q);
+  const sumsNow = quadratureMoments(name, q);
   const m1 = sumsNow[0] as number;
   const m2 = sumsNow[1] as number;
   const m4 = sumsNow[2] as number;

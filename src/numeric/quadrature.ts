@@ -160,7 +160,7 @@ export const DEFAULT_GAUSS_HERMITE_NODES = 96;
  * For f with a kink or jump at 0 use {@link gaussianExpectationSplit}. q must be ≥ 0; q = 0 gives f(0).
  */
 export function gaussianExpectation(f: (x: number) => number, q: number, n: number = DEFAULT_GAUSS_HERMITE_NODES): number {
-  if (!(q >= 0)) return NaN;
+  if (!(q >= 0) || q === Infinity) return NaN;
   if (q === 0) return f(0);
   const { nodes, weights } = gaussHermite(n);
   const scale = Math.sqrt(2 * q);
@@ -199,6 +199,8 @@ const splitCache = new Map<string, QuadratureRule>();
  * integrands that settle to a polynomial away from 0, as activations do). Rules are cached per k.
  */
 export function halfLineGaussianRule(q: number, maxPanel = 1, panelNodes = 12): QuadratureRule {
+  if (!(q < Infinity)) throw new RangeError(`halfLineGaussianRule: q must be finite, got ${q}`);
+  if (!(maxPanel > 0)) throw new RangeError(`halfLineGaussianRule: maxPanel must be positive, got ${maxPanel}`);
   const level = q > 1 ? Math.ceil(0.5 * Math.log2(q)) : 0;
   const key = `${level}|${maxPanel}|${panelNodes}`;
   let rule = splitCache.get(key);
@@ -233,7 +235,7 @@ export function halfLineGaussianRule(q: number, maxPanel = 1, panelNodes = 12): 
  * f should vary on a scale of about 1 or more in x (not oscillate fast far from 0).
  */
 export function gaussianExpectationSplit(f: (x: number) => number, q: number): number {
-  if (!(q >= 0)) return NaN;
+  if (!(q >= 0) || q === Infinity) return NaN;
   if (q === 0) return f(0);
   const { nodes, weights } = halfLineGaussianRule(q);
   const s = Math.sqrt(q);

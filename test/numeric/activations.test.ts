@@ -220,6 +220,19 @@ describe("names", () => {
     expect(() => activationFunction("softmax")).toThrow(/not elementwise/);
     expect(() => activationMoments("swish" as never, 1)).toThrow(/unknown activation "swish"/);
   });
+  it("q = ∞ gives the limits: tanh → sign (E[φ²] = 1, E[φ'²] = 0), sigmoid → step, GELU → ReLU (E[φ'²] = ½)", () => {
+    expect(activationMoments("tanh", Infinity).second).toBe(1);
+    expect(activationMoments("tanh", Infinity).derivativeSecond).toBe(0);
+    expect(activationMoments("sigmoid", Infinity).second).toBe(0.5);
+    expect(activationMoments("gelu", Infinity).derivativeSecond).toBe(0.5);
+    expect(activationMoments("relu", Infinity).second).toBe(Infinity);
+  });
+  it("very large q stays finite and approaches those limits (q = 1e300: tanh E[φ'²] ≈ (4/3)·√(2/(πq)))", () => {
+    // E[sech⁴(√q z)] ≈ φ(0)·∫sech⁴(x)dx/√q = (4/3)/√(2πq) for large q (Laplace-type limit)
+    const m = activationMoments("tanh", 1e300);
+    expect(Math.abs(m.derivativeSecond / ((4 / 3) / Math.sqrt(2 * Math.PI * 1e300)) - 1)).toBeLessThan(1e-9);
+    expect(Math.abs(activationMoments("gelu", 1e300).derivativeSecond - 0.5)).toBeLessThan(1e-9);
+  });
   it("q < 0 or NaN gives NaN moments rather than throwing (numeric kernels do not throw)", () => {
     expect(activationMoments("tanh", -1).second).toBeNaN();
     expect(activationMoments("relu", NaN).second).toBeNaN();
