@@ -1,0 +1,173 @@
+/**
+ * Precision plans side by side: which ones train safely, what breaks first in the others, and what each costs
+ * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
+ */
+import { check } from "./check.js";
+import { getFormat } from "./formats/index.js";
+import { buildGraph } from "./graph/index.js";
+import { predict } from "./magnitude/index.js";
+import type { CheckResult, Verdict } from "./risk/index.js";
+import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
+import { checkOptimizer, type OptimizerCheck } from "./scale/optimizer.js";
+import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
+
+const base = { overflow: "saturate", flushSubnormals: false, scaling: "none" } as const;
+
+/**
+ * The plans `headroom compare` evaluates when the spec names none of its own (our own names):
+ * all binary32; binary16 storage with a binary32 master copy and a loss scale; bfloat16 storage with a binary32
+ * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
+ * factors (Micikevicius et al. 2022) and a binary32 master copy.
+ */
+export const STANDARD_PLANS: readonly PrecisionPlan[] = [
+  { ...base, name: "binary32", activations: "binary32", weights: "binary32", gradients: "binary32", optimizerStates: "binary32", masterWeights: "none", accumulate: "binary32" },
+  { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32" },
+  { ...base, name: "bfloat16 with master copy", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", flushSubnormals: true },
+  { ...base, name: "bfloat16 only", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "bfloat16", masterWeights: "none", accumulate: "binary32", flushSubnormals: true },
+  { ...base, name: "8-bit with scale factors", activations: "e4m3", weights: "e4m3", gradients: "e5m2", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", scaling: "tensor" },
+];
+
+export interface PlanCost {
+  /** weights + master copy + gradients + optimizer states, per parameter */
+  bytesPerParameter: number;
+  /** stored activations, per element */
+  bytesPerActivation: number;
+  /** total for the spec's parameters and one step's activations */
+  parameterBytes: number;
+  activationBytes: number;
+}
+
+export interface PlanOutcome {
+  plan: PrecisionPlan;
+  /** whether the plan is one of the spec's own */
+  fromSpec: boolean;
+  /** the loss scale the plan was judged with (the window's pick when the plan gives none), or null */
+  lossScale: number | null;
+  lossScaleAnswer: LossScaleAnswer | null;
+  /** the check's verdict under that loss scale */
+  checkVerdict: Verdict;
+  optimizer: OptimizerCheck;
+  /** the worse of the check and the optimizer */
+  verdict: Verdict;
+  trainsSafely: boolean;
+  /** the first thing that breaks (or is at risk), one sentence; null when nothing does */
+  firstProblem: string | null;
+  cost: PlanCost;
+  /** memory saved against all-binary32, as a share of its bytes (parameters + activations) */
+  savedShare: number;
+}
+
+export interface PlanComparison {
+  spec: { name: string; source: string };
+  /** best first */
+  outcomes: PlanOutcome[];
+  /** why the ranking is what it is, one sentence each */
+  explanation: string[];
+  caution: string;
+}
+
+/** Bytes of optimizer state per parameter, in units of the state format (common practice). */
+function statesPerParameter(kind: NetworkSpec["training"]["optimizer"]["kind"]): number {
+  return kind === "adam" || kind === "adamw" ? 2 : kind === "momentum" ? 1 : 0;
+}
+
+export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckResult): PlanCost {
+  const bytes = (name: string) => getFormat(name).bytes;
+  const bytesPerParameter =
+    bytes(plan.weights) +
+    (plan.masterWeights === "none" ? 0 : bytes(plan.masterWeights)) +
+    bytes(plan.gradients) +
+    statesPerParameter(spec.training.optimizer.kind) * bytes(plan.optimizerStates);
+  const bytesPerActivation = bytes(plan.activations);
+  let parameters = 0;
+  let activations = 0;
+  for (const t of result.tensors) {
+    if (t.role === "weight") parameters += t.start.elements;
+    if (t.role === "activation" || t.role === "pre-activation") activations += t.start.elements;
+  }
+  return { bytesPerParameter, bytesPerActivation, parameterBytes: parameters * bytesPerParameter, activationBytes: activations * bytesPerActivation };
+}
+
+const ORDER: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
+
+/**
+ * Evaluate the standard plans (or the spec's own, when `own` is set) and rank them: plans that train safely
+ * first, the cheapest of those first; then the rest, least broken first.
+ * @example comparePlans(spec).outcomes[0].plan.name // => "bfloat16 with master copy"
+ */
+export function comparePlans(spec: NetworkSpec, options: { plans?: readonly PrecisionPlan[]; steps?: number; seed?: number } = {}): PlanComparison {
+  const own = [spec.precision, ...spec.plans];
+  const plans = options.plans ?? [...STANDARD_PLANS, ...own.filter((p) => !STANDARD_PLANS.some((s) => s.name === p.name))];
+  const built = buildGraph(spec);
+  if (!built.ok) throw new RangeError(`the spec's network cannot be built: ${built.issues.map((i) => i.message).join("; ")}`);
+
+  const outcomes = plans.map((plan): PlanOutcome => {
+    const planned: NetworkSpec = { ...spec, precision: plan };
+    const prediction = predict(built.graph, planned);
+    const reduced = getFormat(plan.gradients).precision < getFormat("binary32").precision;
+    const answer = reduced ? lossScaleAnswer(prediction, plan, { steps: options.steps ?? spec.training.horizon.steps, seed: options.seed ?? 1 }) : null;
+    const lossScale = plan.lossScale ?? (answer && answer.needed && answer.pick !== null ? answer.pick : null);
+    const result = check(planned, lossScale === null ? {} : { lossScale });
+    const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
+    const scaleVerdict: Verdict = answer && answer.window.empty ? "fails" : "fits";
+    const verdict = [result.verdict, optimizer.verdict, scaleVerdict].reduce((a, b) => (ORDER[b] > ORDER[a] ? b : a), "fits" as Verdict);
+    const cost = planCost(spec, plan, result);
+    return {
+      plan,
+      fromSpec: own.includes(plan),
+      lossScale,
+      lossScaleAnswer: answer,
+      checkVerdict: result.verdict,
+      optimizer,
+      verdict,
+      trainsSafely: verdict !== "fails",
+      firstProblem: firstProblem(result, optimizer, answer),
+      cost,
+      savedShare: 0,
+    };
+  });
+  const reference = outcomes.find((o) => o.plan.name === "binary32") ?? null;
+  const referenceBytes = reference ? reference.cost.parameterBytes + reference.cost.activationBytes : null;
+  for (const o of outcomes) {
+    if (referenceBytes) o.savedShare = 1 - (o.cost.parameterBytes + o.cost.activationBytes) / referenceBytes;
+  }
+  const ranked = [...outcomes].sort(
+    (a, b) =>
+      Number(b.trainsSafely) - Number(a.trainsSafely) ||
+      (a.trainsSafely ? 0 : ORDER[a.verdict] - ORDER[b.verdict]) ||
+      a.cost.parameterBytes + a.cost.activationBytes - (b.cost.parameterBytes + b.cost.activationBytes) ||
+      ORDER[a.verdict] - ORDER[b.verdict],
+  );
+  return {
+    spec: { name: spec.name, source: spec.source },
+    outcomes: ranked,
+    explanation: explain(ranked),
+    caution:
+      "These rankings rest on estimates, not guarantees: confirm the chosen plan with a short run of a few hundred steps before a long one.",
+  };
+}
+
+function firstProblem(result: CheckResult, optimizer: OptimizerCheck, answer: LossScaleAnswer | null): string | null {
+  if (answer?.window.empty) return answer.sentences[0] ?? null;
+  const failing = result.formats.find((f) => f.verdict === "fails") ?? result.formats.find((f) => f.verdict === "at-risk");
+  if (failing && (failing.verdict === "fails" || optimizer.verdict !== "fails")) return failing.reasons[0] ?? null;
+  return optimizer.reasons[0] ?? null;
+}
+
+function explain(ranked: PlanOutcome[]): string[] {
+  const lines: string[] = [];
+  const safe = ranked.filter((o) => o.trainsSafely);
+  if (safe.length === 0) {
+    lines.push("No plan is expected to train safely; the least broken comes first.");
+  } else {
+    const best = safe[0]!;
+    lines.push(
+      `${best.plan.name} is the cheapest plan expected to train safely (${best.cost.bytesPerParameter} bytes per parameter, ${best.cost.bytesPerActivation} per activation element${best.savedShare > 0 ? `, ${(100 * best.savedShare).toFixed(0)}% less memory than binary32` : ""}).`,
+    );
+  }
+  for (const o of ranked) {
+    if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely: ${o.firstProblem ?? "see its findings"}`);
+    else if (o.verdict === "at-risk") lines.push(`${o.plan.name} trains, with risks: ${o.firstProblem ?? "see its findings"}`);
+  }
+  return lines;
+}

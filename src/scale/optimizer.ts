@@ -1,0 +1,361 @@
+/**
+ * The optimizer in the planned formats: its states (first and second moments, momentum buffers), its epsilon,
+ * and whether each weight update survives the add into the stored weights (swamping).
+ *
+ * Swamping (SCIENCE.md §1.1 [X]; Micikevicius et al. 2018 §3.1): w + Δ == w under round-to-nearest-even
+ * whenever |Δ| < ½·ulp(w). For w in [2^e, 2^(e+1)) in a format of precision p, ulp(w) = 2^(e−p+1), so the
+ * update is lost when |Δ| < 2^(e−p); below the smallest normal the spacing is that of the subnormals.
+ */
+import type { Format } from "../formats/index.js";
+import { getFormat, roundTo } from "../formats/index.js";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
+import { fractionBelow, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
+import type { FormatName } from "../formats/names.js";
+import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
+
+/** The learning rates the assessment looks at: the smallest and largest of the schedule. */
+export type SchedulePoint = "warm-up start" | "peak" | "end";
+
+/** Shares of weight updates lost to swamping at one point of the schedule, for the plan and for each remedy. */
+export interface UpdateLoss {
+  at: SchedulePoint;
+  learningRate: number;
+  /** rms of the update elements */
+  updateRms: number;
+  /** log2(update rms / weight rms): how far below its weight a typical update is */
+  relativeLog2: number;
+  /** lost share under the plan as written (into the master copy if there is one, else into the stored weights) */
+  planned: number;
+  /** lost share when updating the stored weights directly, with no master copy */
+  withoutMaster: number;
+  /** lost share with a binary32 master copy */
+  withBinary32Master: number;
+  /** lost share with compensated (Kahan) summation into the stored weights: about twice the precision */
+  compensated: number;
+  /** with stochastic rounding nothing is lost in expectation; steps until rounding noise falls below 10% of the summed update */
+  stochasticStepsToAverage: number;
+}
+
+/** One weight tensor and its optimizer states. */
+export interface WeightOptimizerCheck {
+  weight: string;
+  gradient: string;
+  weightRms: number;
+  gradientRms: { start: number; end: number };
+  updates: UpdateLoss[];
+  /** AdamW only: share of decoupled weight-decay steps (lr·decay·w) lost, at the end learning rate */
+  decayLost: number | null;
+  /** share of first-moment (or momentum) elements flushed to zero in the optimizer-state format, first step */
+  firstMomentFlushed: number;
+  /** share of second-moment elements flushed at the first step ((1−β2)·g²) and once averaged (≈ g²) */
+  secondMomentFlushed: { firstStep: number; settled: number };
+  /** probability per step that a second-moment element overflows (g² past the overflow level) */
+  secondMomentOverflowRisk: number;
+}
+
+export type OptimizerVerdict = "fits" | "at-risk" | "fails";
+
+export interface OptimizerCheck {
+  kind: OptimizerSpec["kind"];
+  /** where the update is added: the master copy's format, or the stored weights' format */
+  updateFormat: FormatName;
+  weightFormat: FormatName;
+  stateFormat: FormatName;
+  epsilon: { value: number; stored: number; vanishes: boolean } | null;
+  tensors: WeightOptimizerCheck[];
+  /** the worst lost share under the plan, where it happens */
+  worst: { weight: string; at: SchedulePoint; lostShare: number } | null;
+  verdict: OptimizerVerdict;
+  /** one sentence each, worst first */
+  reasons: string[];
+  /** remedies with their computed effect, best first (empty when nothing is lost) */
+  remedies: string[];
+}
+
+/**
+ * Thresholds (documented in README.md): a weight tensor whose updates are lost for more than 1% of its
+ * elements at some point of the schedule is at risk; more than half lost at the peak learning rate fails
+ * (training barely moves those weights). A state format that flushes more than 1% of second moments is at risk.
+ */
+export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 0.01, lostFails: 0.5, momentFlushAtRisk: 0.01 } as const;
+
+/**
+ * Share of updates lost when adding updates to weights stored in a format of precision `precision`.
+ * `weight` describes the stored weights; `updateBelow(t)` is the share of update elements with |Δ| < t.
+ * Sums over the weight's binades: P(|w| in [2^e, 2^(e+1))) · P(|Δ| < 2^(e−p)) (SCIENCE.md §1.1).
+ */
+export function swampedShare(
+  weight: MagnitudeProfile,
+  updateBelow: (t: number) => number,
+  format: Pick<Format, "precision" | "emin">,
+): number {
+  const p = format.precision;
+  const subnormalHalfSpacing = 2 ** (format.emin - p);
+  const zeros = weight.zeroFraction;
+  // a zero weight keeps an update only when it reaches half the smallest subnormal
+  let lost = zeros * updateBelow(subnormalHalfSpacing);
+  if (!(weight.rms > 0) || zeros >= 1) return zeros > 0 ? lost : updateBelow(subnormalHalfSpacing);
+  const centre = Math.floor(Math.log2(weight.rms));
+  const low = centre - 40;
+  const high = centre + 12;
+  const F = (t: number) => fractionBelow(weight, t);
+  // mass below the lowest binade considered: charge it the loss of that binade (an upper bound, negligible mass)
+  let previous = F(2 ** low);
+  let nonzeroLost = previous * updateBelow(2 ** (Math.max(low, format.emin) - p));
+  for (let e = low; e <= high; e++) {
+    const next = e === high ? 1 : F(2 ** (e + 1));
+    const mass = Math.max(0, next - previous);
+    previous = next;
+    if (mass === 0) continue;
+    const halfUlp = e < format.emin ? subnormalHalfSpacing : 2 ** (e - p);
+    nonzeroLost += mass * updateBelow(halfUlp);
+  }
+  lost += (1 - zeros) * nonzeroLost;
+  return Math.min(1, Math.max(0, lost));
+}
+
+/**
+ * Steps of stochastic rounding until the rounding noise of the summed update falls below 10% of it.
+ * With q = |Δ|/ulp < 1, each step rounds up with probability q (unbiased), adding noise of variance
+ * q(1−q)·ulp²; after N steps the relative noise is sqrt((1−q)/(N·q)) (binomial counting; common practice).
+ */
+export function stochasticStepsToAverage(updateRms: number, weightRms: number, format: Pick<Format, "precision">): number {
+  if (!(updateRms > 0) || !(weightRms > 0)) return 0;
+  const ulp = 2 ** (Math.floor(Math.log2(weightRms)) - format.precision + 1);
+  const q = updateRms / ulp;
+  if (q >= 1) return 1;
+  return Math.ceil((100 * (1 - q)) / q);
+}
+
+/** The update elements at one learning rate (unscaled gradients: the loss scale is removed before the optimizer). */
+function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr: number, firstStep: boolean): MagnitudeProfile {
+  const [beta1] = optimizer.betas;
+  switch (optimizer.kind) {
+    case "sgd":
+      return { ...scaleProfile(gradient, lr), zeroFraction: gradient.zeroFraction };
+    case "momentum":
+      // a momentum buffer of independent gradients settles at variance σ²/(1−μ²) (geometric sum; common practice)
+      return scaleProfile(gradient, (lr * (firstStep ? 1 : 1)) / Math.sqrt(1 - optimizer.momentum ** 2));
+    case "adam":
+    case "adamw": {
+      if (firstStep) {
+        // at the first step m̂ = g and v̂ = g², so |Δ| = lr for every nonzero gradient (Kingma & Ba 2015, step size)
+        return { elements: gradient.elements, zeroFraction: gradient.zeroFraction, shape: "constant", rms: lr, log2Spread: 0 };
+      }
+      // settled, for noise-dominated gradients: m has variance σ²(1−β1)/(1+β1) (exponential average of
+      // independent terms) and √v̂ ≈ σ, so Δ ≈ lr·sqrt((1−β1)/(1+β1))·Z (derived; SCIENCE.md §3.3 gives |Δ| ≈ lr early)
+      return {
+        elements: gradient.elements,
+        zeroFraction: gradient.zeroFraction,
+        shape: "gaussian",
+        rms: lr * Math.sqrt((1 - beta1) / (1 + beta1)),
+        log2Spread: 0,
+      };
+    }
+  }
+}
+
+function schedule(optimizer: OptimizerSpec): { at: SchedulePoint; lr: number; firstStep: boolean }[] {
+  const points: { at: SchedulePoint; lr: number; firstStep: boolean }[] = [];
+  const { peak, end } = optimizer.learningRate;
+  // linear warm-up from peak/warmupSteps (common practice)
+  if (optimizer.warmupSteps > 0) points.push({ at: "warm-up start", lr: peak / optimizer.warmupSteps, firstStep: true });
+  points.push({ at: "peak", lr: peak, firstStep: optimizer.warmupSteps === 0 });
+  if (end !== peak) points.push({ at: "end", lr: end, firstStep: false });
+  return points;
+}
+
+/** Pair each weight with its weight gradient by layer and suffix (`dense-1/weight` ↔ `dense-1/weight-gradient`). */
+export function weightPairs(prediction: Prediction): { weight: TensorPrediction; gradient: TensorPrediction }[] {
+  const gradients = new Map<string, TensorPrediction>();
+  for (const t of prediction.tensors) if (t.role === "weight-gradient") gradients.set(pairKey(t), t);
+  const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
+  for (const t of prediction.tensors) {
+    if (t.role !== "weight") continue;
+    const g = gradients.get(pairKey(t));
+    if (g) pairs.push({ weight: t, gradient: g });
+  }
+  return pairs;
+}
+
+function pairKey(t: TensorPrediction): string {
+  const suffix = t.id.includes(":") ? t.id.slice(t.id.lastIndexOf(":")) : "";
+  return `${t.layer}${suffix}`;
+}
+
+export interface OptimizerCheckOptions {
+  /** limit the per-tensor list to the worst N (all are assessed); default: all */
+  keep?: number;
+}
+
+/**
+ * Assess the optimizer of a spec under a precision plan.
+ * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
+ */
+export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, prediction: Prediction): OptimizerCheck {
+  const weightFormat = getFormat(plan.weights);
+  const stateFormat = getFormat(plan.optimizerStates);
+  const master = plan.masterWeights === "none" ? null : getFormat(plan.masterWeights);
+  const binary32 = getFormat("binary32");
+  const updateFormat = master ?? weightFormat;
+  const compensatedFormat = { precision: 2 * weightFormat.precision, emin: weightFormat.emin };
+  const stateFlushBound = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal / 2;
+  const stateOverflow = stateFormat.overflowThreshold;
+  const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
+  const [beta1, beta2] = optimizer.betas;
+
+  const tensors: WeightOptimizerCheck[] = [];
+  for (const { weight, gradient } of weightPairs(prediction)) {
+    // the weights at the end of the horizon have grown; their ulp with them
+    const w = weight.end;
+    const updates: UpdateLoss[] = schedule(optimizer).map(({ at, lr, firstStep }) => {
+      const g = at === "end" ? gradient.end : gradient.start;
+      const update = updateProfile(optimizer, g, lr, firstStep);
+      const below = (t: number) => fractionBelow(update, t);
+      const withoutMaster = swampedShare(w, below, weightFormat);
+      const withBinary32Master = swampedShare(w, below, binary32);
+      return {
+        at,
+        learningRate: lr,
+        updateRms: update.rms,
+        relativeLog2: Math.log2(update.rms / w.rms),
+        planned: master ? swampedShare(w, below, master) : withoutMaster,
+        withoutMaster,
+        withBinary32Master,
+        compensated: swampedShare(w, below, compensatedFormat),
+        stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
+      };
+    });
+    let decayLost: number | null = null;
+    if (optimizer.kind === "adamw" && optimizer.weightDecay > 0) {
+      // decoupled decay subtracts lr·λ·w: a fixed fraction of each weight (Loshchilov & Hutter 2019)
+      const ratio = optimizer.learningRate.end * optimizer.weightDecay;
+      decayLost = decoupledDecayLost(ratio, updateFormat);
+    }
+    const firstMoment = adamLike
+      ? scaleProfile(gradient.end, 1 - beta1)
+      : optimizer.kind === "momentum"
+        ? gradient.end
+        : null;
+    tensors.push({
+      weight: weight.id,
+      gradient: gradient.id,
+      weightRms: w.rms,
+      gradientRms: { start: gradient.start.rms, end: gradient.end.rms },
+      updates,
+      decayLost,
+      firstMomentFlushed: firstMoment ? fractionBelow(firstMoment, stateFlushBound) : 0,
+      secondMomentFlushed: adamLike
+        ? {
+            // (1−β2)·g² ≤ bound ⇔ |g| ≤ sqrt(bound/(1−β2)) (SCIENCE.md §3.3 / DESIGN.md §5 item 5)
+            firstStep: fractionBelow(gradient.end, Math.sqrt(stateFlushBound / (1 - beta2))),
+            settled: fractionBelow(gradient.end, Math.sqrt(stateFlushBound)),
+          }
+        : { firstStep: 0, settled: 0 },
+      secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(gradient.start, Math.sqrt(stateOverflow)) : 0,
+    });
+  }
+
+  const epsilon = adamLike
+    ? (() => {
+        const stored = roundTo(stateFormat, optimizer.epsilon, { flushSubnormals: plan.flushSubnormals });
+        return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
+      })()
+    : null;
+
+  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat });
+}
+
+/** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
+function decoupledDecayLost(ratio: number, format: Pick<Format, "precision">): number {
+  // for w = m·2^e with m in [1, 2): lost when ratio·m < 2^-p, i.e. m < 2^-p/ratio; weights spread log-uniformly
+  // within a binade (Benford-like, common practice), so the share is log2 of that bound clamped to [0, 1]
+  const bound = 2 ** -format.precision / ratio;
+  if (bound <= 1) return 0;
+  if (bound >= 2) return 1;
+  return Math.log2(bound);
+}
+
+function summarise(
+  optimizer: OptimizerSpec,
+  plan: PrecisionPlan,
+  tensors: WeightOptimizerCheck[],
+  epsilon: OptimizerCheck["epsilon"],
+  formats: { weightFormat: Format; stateFormat: Format; updateFormat: Format },
+): OptimizerCheck {
+  let worst: OptimizerCheck["worst"] = null;
+  let worstPeak = 0;
+  let worstSecondMoment = 0;
+  let worstSecondMomentTensor = "";
+  for (const t of tensors) {
+    for (const u of t.updates) {
+      if (!worst || u.planned > worst.lostShare) worst = { weight: t.weight, at: u.at, lostShare: u.planned };
+      if (u.at === "peak") worstPeak = Math.max(worstPeak, u.planned);
+    }
+    if (t.secondMomentFlushed.firstStep > worstSecondMoment) {
+      worstSecondMoment = t.secondMomentFlushed.firstStep;
+      worstSecondMomentTensor = t.weight;
+    }
+  }
+  const reasons: string[] = [];
+  const remedies: string[] = [];
+  let verdict: OptimizerVerdict = "fits";
+  const raise = (v: OptimizerVerdict) => {
+    if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
+  };
+  const pct = (x: number) => `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
+  const into = plan.masterWeights === "none" ? `the stored ${formats.weightFormat.name} weights` : `the ${formats.updateFormat.name} master copy`;
+
+  if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
+    raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk");
+    reasons.push(
+      `${pct(worst.lostShare)} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.`,
+    );
+    const t = tensors.find((x) => x.weight === worst!.weight)!;
+    const u = t.updates.find((x) => x.at === worst!.at)!;
+    if (plan.masterWeights === "none") {
+      remedies.push(`keep a binary32 master copy of the weights: ${pct(u.withBinary32Master)} lost instead of ${pct(u.planned)} (+4 bytes per parameter)`);
+      remedies.push(
+        `round the weight update stochastically: nothing lost in expectation; the rounding noise of ${worst.weight} averages below 10% after about ${u.stochasticStepsToAverage} steps (no extra memory)`,
+      );
+      remedies.push(
+        `compensated (Kahan) summation into the stored weights: ${pct(u.compensated)} lost (+${formats.weightFormat.bytes} bytes per parameter for the compensation buffer)`,
+      );
+    } else {
+      remedies.push(`a binary32 master copy instead of ${formats.updateFormat.name}: ${pct(u.withBinary32Master)} lost`);
+    }
+  }
+  const decay = tensors.map((t) => t.decayLost ?? 0).reduce((a, b) => Math.max(a, b), 0);
+  if (decay > OPTIMIZER_THRESHOLDS.lostAtRisk) {
+    raise("at-risk");
+    reasons.push(
+      `weight decay steps (learning rate × decay = ${(optimizer.learningRate.end * optimizer.weightDecay).toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${formats.updateFormat.name} at the end learning rate.`,
+    );
+  }
+  if (worstSecondMoment > OPTIMIZER_THRESHOLDS.momentFlushAtRisk) {
+    raise("at-risk");
+    reasons.push(
+      `${pct(worstSecondMoment)} of the second moments of ${worstSecondMomentTensor} flush to zero in ${formats.stateFormat.name} at the first step ((1 − β2)·g² below the smallest subnormal).`,
+    );
+    if (formats.stateFormat.name !== "binary32") remedies.push("hold the optimizer states in binary32 (+ their size again in bytes)");
+  }
+  if (epsilon?.vanishes) {
+    raise(worstSecondMoment > 0 ? "fails" : "at-risk");
+    reasons.push(
+      `epsilon ${epsilon.value} rounds to 0 in ${formats.stateFormat.name}; where a second moment is also 0 the update divides by zero.`,
+    );
+    remedies.push(`compute the update in binary32, or raise epsilon to at least ${formats.stateFormat.minSubnormal.toExponential(2)}`);
+  }
+  return {
+    kind: optimizer.kind,
+    updateFormat: formats.updateFormat.name,
+    weightFormat: formats.weightFormat.name,
+    stateFormat: formats.stateFormat.name,
+    epsilon,
+    tensors,
+    worst,
+    verdict,
+    reasons,
+    remedies,
+  };
+}

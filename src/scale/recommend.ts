@@ -1,0 +1,252 @@
+/**
+ * The loss-scale answer for one plan: the static window in the gradient format, the pick, which tensors set
+ * each edge, and — when no static scale exists — remedies ranked by their computed effect.
+ */
+import { getFormat } from "../formats/index.js";
+import type { FormatName } from "../formats/names.js";
+import type { Prediction, TensorPrediction } from "../magnitude/types.js";
+import { energyBelow, probabilityAnyAbove, rangeLimits, scaleProfile, type RangeLimits } from "../risk/index.js";
+import type { PrecisionPlan } from "../spec/types.js";
+import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
+import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
+
+/** Roles the loss scale multiplies and that are stored in the gradient format (Micikevicius et al. 2018 §3.2). */
+const SCALED_GRADIENT_ROLES = new Set(["activation-gradient", "weight-gradient"]);
+
+/** A remedy for an empty (or missing) window, with its effect computed. */
+export interface ScaleRemedy {
+  kind: "hold-in-binary32" | "dynamic-scale" | "bfloat16-gradients";
+  /** one sentence: what to do and what it gives */
+  sentence: string;
+  /** whether the remedy gives a usable answer (a non-empty window, or a dynamic scale that rarely skips) */
+  works: boolean;
+  /** hold-in-binary32: the tensors to move, and the window once they are moved */
+  tensors?: string[];
+  window?: ScaleWindow;
+  /** bytes per step the remedy adds (tensors held in binary32 instead of the gradient format) */
+  extraBytes?: number;
+}
+
+export interface LossScaleAnswer {
+  /** the gradient format the window is for */
+  format: FormatName;
+  window: ScaleWindow;
+  /** 2^pickLog2, or null */
+  pick: number | null;
+  /** the scale the spec asked to evaluate, and whether it lies in the window */
+  requested: { scale: number; inside: boolean } | null;
+  /** false when the window contains S = 1: no scaling needed */
+  needed: boolean;
+  options: WindowOptions;
+  /** plain sentences: the answer, the edges and what sets them */
+  sentences: string[];
+  remedies: ScaleRemedy[];
+  dynamic: DynamicScaleResult;
+}
+
+export interface LossScaleOptions {
+  window?: Partial<WindowOptions>;
+  dynamic?: Partial<DynamicScaleSettings>;
+  /** steps of the horizon the dynamic scale is simulated over (the spec's horizon; default 10,000) */
+  steps?: number;
+  seed?: number;
+}
+
+/**
+ * A tensor's profile part-way through the horizon: the rms moves geometrically from its start to its end value
+ * (gradients shrink as the loss falls; the horizon's end is the spec's own statement), the spread linearly.
+ */
+export function profileAt(tensor: TensorPrediction, progress: number): TensorPrediction["start"] {
+  if (progress <= 0) return tensor.start;
+  if (progress >= 1) return tensor.end;
+  const { start, end } = tensor;
+  const rms = start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms;
+  return { ...start, rms, log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress };
+}
+
+/** Curves of one gradient tensor: overflow at the larger of its start/end profiles, flushing at the smaller. */
+export function gradientCurves(tensor: TensorPrediction, limits: RangeLimits): ScaledTensorCurves {
+  const risk = new Map<number, number>();
+  const flush = new Map<number, number>();
+  return {
+    id: tensor.id,
+    overflowRisk(k) {
+      let r = risk.get(k);
+      if (r === undefined) {
+        const s = 2 ** k;
+        r = Math.max(
+          probabilityAnyAbove(scaleProfile(tensor.start, s), limits.overflowLevel),
+          probabilityAnyAbove(scaleProfile(tensor.end, s), limits.overflowLevel),
+        );
+        risk.set(k, r);
+      }
+      return r;
+    },
+    flushedEnergy(k) {
+      let f = flush.get(k);
+      if (f === undefined) {
+        const s = 2 ** k;
+        f = Math.max(energyBelow(scaleProfile(tensor.start, s), limits.flushBound), energyBelow(scaleProfile(tensor.end, s), limits.flushBound));
+        flush.set(k, f);
+      }
+      return f;
+    },
+  };
+}
+
+function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
+  const f = getFormat(format);
+  const eightBit = f.bits === 8;
+  return rangeLimits(f, { saturate: eightBit && plan.overflow === "saturate", flushSubnormals: plan.flushSubnormals });
+}
+
+/**
+ * The loss-scale answer for a prediction (made with loss scale 1) under a plan.
+ * @example lossScaleAnswer(prediction, plan).pick // => 1024
+ */
+export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, options: LossScaleOptions = {}): LossScaleAnswer {
+  const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
+  const format = plan.gradients;
+  const limits = gradientLimits(plan, format);
+  const gradients = prediction.tensors.filter((t) => SCALED_GRADIENT_ROLES.has(t.role));
+  const curves = gradients.map((t) => gradientCurves(t, limits));
+  const window = lossScaleWindow(curves, windowOptions);
+  const pick = window.pickLog2 === null ? null : 2 ** window.pickLog2;
+  const requested =
+    plan.lossScale === undefined
+      ? null
+      : {
+          scale: plan.lossScale,
+          inside: !window.empty && Math.log2(plan.lossScale) >= window.lowestLog2! && Math.log2(plan.lossScale) <= window.highestLog2!,
+        };
+
+  const byId = new Map(gradients.map((t) => [t.id, t] as const));
+  const dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions), {
+    steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
+    seed: options.seed ?? 1,
+    horizonPoints: 8,
+    ...(options.dynamic ? { settings: options.dynamic } : {}),
+  });
+
+  const sentences = describe(window, format, windowOptions, requested);
+  const remedies = window.empty ? rankRemedies(curves, byId, window, windowOptions, plan, dynamic) : [];
+  return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
+}
+
+/** Overflow probability per step over all gradient tensors as they drift from their start to their end profiles. */
+function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions) {
+  return {
+    overflowProbability(scale: number, progress: number) {
+      let none = 1;
+      for (const t of gradients) none *= 1 - probabilityAnyAbove(scaleProfile(profileAt(t, progress), scale), limits.overflowLevel);
+      return 1 - none;
+    },
+    flushesTooMuch(scale: number, progress: number) {
+      return gradients.some((t) => energyBelow(scaleProfile(profileAt(t, progress), scale), limits.flushBound) > options.flushTolerance);
+    },
+  };
+}
+
+function describe(
+  window: ScaleWindow,
+  format: FormatName,
+  options: WindowOptions,
+  requested: LossScaleAnswer["requested"],
+): string[] {
+  const out: string[] = [];
+  const pow = (k: number) => `2^${k} = ${2 ** k >= 1 ? 2 ** k : (2 ** k).toExponential(2)}`;
+  if (window.empty) {
+    if (window.gapBinades !== null) {
+      out.push(
+        `No static loss scale keeps ${format} gradients within the budget: ${window.upperEdgeSetBy} overflows above ${pow(window.highestLog2!)} while ${window.lowerEdgeSetBy} needs at least ${pow(window.lowestLog2!)}; they pull ${window.gapBinades} binades apart.`,
+      );
+    } else if (window.highestLog2 === null) {
+      out.push(`Every searched scale overflows ${format} gradients beyond the budget; ${window.upperEdgeSetBy} overflows first.`);
+    } else {
+      out.push(`No searched scale keeps the flushed gradient energy of ${window.lowerEdgeSetBy} under ${options.flushTolerance} in ${format}.`);
+    }
+  } else if (window.unscaledFits) {
+    out.push(
+      `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, and 1 is among them.`,
+    );
+  } else {
+    out.push(
+      `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick keeps ${window.marginBelowOverflow} binade(s) below the overflow edge.`,
+    );
+  }
+  if (requested) {
+    out.push(`The spec's loss scale ${requested.scale} is ${requested.inside ? "inside" : "outside"} the window.`);
+  }
+  out.push("The scale is removed before the optimizer step and before gradient clipping, so their settings need no change (Micikevicius et al. 2018 §3.2).");
+  return out;
+}
+
+/** Remedies for an empty window, each with its effect computed, the working ones first and cheapest first. */
+function rankRemedies(
+  curves: ScaledTensorCurves[],
+  byId: Map<string, TensorPrediction>,
+  window: ScaleWindow,
+  options: WindowOptions,
+  plan: PrecisionPlan,
+  dynamic: DynamicScaleResult,
+): ScaleRemedy[] {
+  const remedies: ScaleRemedy[] = [];
+  const gradientBytes = getFormat(plan.gradients).bytes;
+  // 1. hold the tensors that set the edges in binary32, greedily, one edge setter at a time (at most 6)
+  for (const edge of ["lower", "upper"] as const) {
+    const held: string[] = [];
+    let current = window;
+    let remaining = curves;
+    for (let i = 0; i < 6 && current.empty; i++) {
+      const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
+      if (!setter) break;
+      held.push(setter);
+      remaining = remaining.filter((c) => c.id !== setter);
+      current = lossScaleWindow(remaining, options);
+    }
+    if (held.length === 0) continue;
+    const extra = held.reduce((sum, id) => sum + (byId.get(id)?.start.elements ?? 0) * (4 - gradientBytes), 0);
+    remedies.push({
+      kind: "hold-in-binary32",
+      works: !current.empty,
+      tensors: held,
+      window: current,
+      extraBytes: extra,
+      sentence: current.empty
+        ? `Holding ${held.join(", ")} in binary32 does not open a window.`
+        : `Hold ${held.join(", ")} in binary32: the window becomes 2^${current.lowestLog2} to 2^${current.highestLog2}, pick 2^${current.pickLog2} (${formatBytes(extra)} more per step).`,
+    });
+  }
+  // 2. a dynamic scale, with its simulated skip rate
+  const skipRate = dynamic.skippedSteps / dynamic.steps;
+  remedies.push({
+    kind: "dynamic-scale",
+    works: skipRate < 0.01 && dynamic.stepsFlushingTooMuch < 0.01 * dynamic.steps,
+    sentence: `A dynamic loss scale skips ${dynamic.skippedSteps} of ${dynamic.steps} simulated steps (${(100 * skipRate).toPrecision(2)}%) and spends ${dynamic.stepsFlushingTooMuch} steps flushing more than the tolerance; it settles between ${dynamic.settledLowest} and ${dynamic.settledHighest}.`,
+  });
+  // 3. bfloat16 gradients: the same tensors against bfloat16's range
+  if (plan.gradients !== "bfloat16") {
+    const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
+    const bfCurves = [...byId.values()].map((t) => gradientCurves(t, bf));
+    const w = lossScaleWindow(bfCurves, options);
+    remedies.push({
+      kind: "bfloat16-gradients",
+      works: !w.empty,
+      window: w,
+      sentence: w.empty
+        ? "bfloat16 gradients do not open a window either."
+        : w.unscaledFits
+          ? `Store gradients in bfloat16: no loss scale needed (the window runs from 2^${w.lowestLog2} to 2^${w.highestLog2}), at 8 significant bits instead of 11.`
+          : `Store gradients in bfloat16: the window becomes 2^${w.lowestLog2} to 2^${w.highestLog2}.`,
+    });
+  }
+  const order = { "hold-in-binary32": 0, "dynamic-scale": 1, "bfloat16-gradients": 2 } as const;
+  return remedies.sort((a, b) => Number(b.works) - Number(a.works) || (a.extraBytes ?? 0) - (b.extraBytes ?? 0) || order[a.kind] - order[b.kind]);
+}
+
+function formatBytes(bytes: number): string {
+  if (bytes >= 2 ** 30) return `${(bytes / 2 ** 30).toFixed(1)} GiB`;
+  if (bytes >= 2 ** 20) return `${(bytes / 2 ** 20).toFixed(1)} MiB`;
+  if (bytes >= 2 ** 10) return `${(bytes / 2 ** 10).toFixed(1)} KiB`;
+  return `${bytes} B`;
+}
