@@ -91,7 +91,7 @@ export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicS
   validateSettings(settings);
   const steps = options.steps;
   if (!Number.isInteger(steps) || steps < 1) throw new RangeError(`steps must be a positive integer. Value: ${steps}`);
-  const random = options.random ?? seededUniform(options.seed);
+  const random = options.random ?? (() => { const source = createRandom(options.seed); return () => source.next(); })();
   const horizonPoints = Math.max(1, Math.min(options.horizonPoints ?? 64, steps));
   const maxPoints = Math.max(2, options.maxPoints ?? 400);
 
@@ -190,16 +190,4 @@ function thin(points: ScalePoint[], maxPoints: number): ScalePoint[] {
   const stride = (points.length - 1) / (maxPoints - 1);
   for (let i = 0; i < maxPoints; i++) out.push(points[Math.round(i * stride)]!);
   return out;
-}
-
-/** A small seeded uniform source (mulberry32, a public-domain 32-bit generator; common practice). */
-export function seededUniform(seed: number): () => number {
-  let state = seed >>> 0;
-  return () => {
-    state = (state + 0x6d2b79f5) >>> 0;
-    let t = state;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
 }
