@@ -7,6 +7,8 @@
  * factor below the overflow edge and about one step per run of clean steps is skipped.
  */
 
+import { createRandom } from "../numeric/index.js";
+
 /** The knobs of a dynamic loss scale (our own names). */
 export interface DynamicScaleSettings {
   /** the scale at the first step */
