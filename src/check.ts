@@ -5,16 +5,9 @@
 import { buildGraph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
 import { FORMATS } from "./formats/index.js";
-import type { Prediction } from "./magnitude/types.js";
-import {
-  judgePrediction,
-  limitsFor,
-  lossScaleCurves,
-  type CheckOptions,
-  type CheckResult,
-  type LossScaleWindowSummary,
-} from "./risk/index.js";
-import { lossScaleWindow } from "./scale/window.js";
+import { judgePrediction, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { checkOptimizer, type OptimizerCheck } from "./scale/optimizer.js";
+import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
 import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 
@@ -29,19 +22,55 @@ export class CheckInputError extends RangeError {
 }
 
 /**
- * Judge a network spec against its precision plan (or the formats given).
+ * A check with the decisions that follow from it: the loss-scale answer for the plan's gradient format and the
+ * optimizer in the planned formats. `verdict` folds both in.
+ */
+export interface CheckAnswer extends CheckResult {
+  /** the loss-scale window, pick and remedies; null when gradients are held in binary32 or wider */
+  lossScaleAnswer: LossScaleAnswer | null;
+  /** the optimizer's states, epsilon and update swamping under the plan */
+  optimizer: OptimizerCheck;
+}
+
+/** Options of {@link check}: those of the judgement, plus the loss-scale answer's. */
+export interface CheckAnswerOptions extends CheckOptions {
+  /** simulate dynamic loss scaling even when a static scale exists (the report draws its trajectory) */
+  simulateDynamicScale?: boolean;
+  /** seed of the dynamic-scale simulation (default 1) */
+  seed?: number;
+}
+
+const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
+
+/**
+ * Judge a network spec against its precision plan (or the formats given), answer the loss scale and check the
+ * optimizer. When the plan gives no loss scale and its gradients are held in a reduced format, gradients are
+ * judged at the recommended scale (the window's pick), and the result says so.
  * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
  * network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
-export function check(spec: NetworkSpec, options: CheckOptions = {}): CheckResult {
+export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}): CheckAnswer {
   const plan = choosePlan(spec, options.plan);
   const built = buildGraph(spec);
   if (!built.ok) throw new CheckInputError(built.issues);
   const planned = { ...spec, precision: plan };
   const prediction = predict(built.graph, planned);
-  const window = options.lossScale === undefined && plan.lossScale === undefined ? searchLossScale(plan, prediction) : undefined;
-  return judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
+  const answer = needsLossScale(plan)
+    ? lossScaleAnswer(prediction, plan, {
+        steps: spec.training.horizon.steps,
+        seed: options.seed ?? 1,
+        simulate: options.simulateDynamicScale ? "always" : "when-empty",
+      })
+    : null;
+  const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null && answer.needed ? windowSummary(answer) : undefined;
+  const judged = judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
+  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
+  // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
+  const scaleVerdict: Verdict =
+    answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";
+  const verdict = [judged.verdict, optimizer.verdict, scaleVerdict].reduce((a, b) => (SEVERITY[b] > SEVERITY[a] ? b : a));
+  return { ...judged, verdict, lossScaleAnswer: answer, optimizer };
 }
 
 /**
@@ -55,20 +84,16 @@ export function needsLossScale(plan: PrecisionPlan): boolean {
   return !(format.bits === 8 && plan.scaling !== "none");
 }
 
-/** The loss-scale window for the plan's gradient format (src/scale/window.ts, its default budget and tolerance). */
-export function searchLossScale(plan: PrecisionPlan, prediction: Prediction): LossScaleWindowSummary | undefined {
-  if (!needsLossScale(plan)) return undefined;
-  const curves = lossScaleCurves(prediction.tensors, limitsFor(plan, plan.gradients));
-  if (curves.length === 0) return undefined;
-  const window = lossScaleWindow(curves);
+function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {
+  const w = answer.window;
   return {
-    format: plan.gradients,
-    lowestLog2: window.lowestLog2,
-    highestLog2: window.highestLog2,
-    pickLog2: window.pickLog2,
-    empty: window.empty,
-    upperEdgeSetBy: window.upperEdgeSetBy,
-    lowerEdgeSetBy: window.lowerEdgeSetBy,
+    format: answer.format,
+    lowestLog2: w.lowestLog2,
+    highestLog2: w.highestLog2,
+    pickLog2: w.pickLog2,
+    empty: w.empty,
+    upperEdgeSetBy: w.upperEdgeSetBy,
+    lowerEdgeSetBy: w.lowerEdgeSetBy,
   };
 }
 
@@ -84,14 +109,14 @@ function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan 
 
 /** The result of {@link checkFile}: a check, or the problems of the spec file, positioned. */
 export type CheckFileResult =
-  | { ok: true; result: CheckResult; warnings: SpecIssue[] }
+  | { ok: true; result: CheckAnswer; warnings: SpecIssue[] }
   | { ok: false; issues: SpecIssue[] };
 
 /**
  * Load a spec file and check it. Problems of the file or of its network come back as positioned issues
  * (render them with formatSpecIssue); bad options still throw RangeError.
  */
-export async function checkFile(path: string, options: CheckOptions = {}): Promise<CheckFileResult> {
+export async function checkFile(path: string, options: CheckAnswerOptions = {}): Promise<CheckFileResult> {
   const loaded = await loadSpec(path);
   if (!loaded.ok) return { ok: false, issues: loaded.issues };
   try {

@@ -97,7 +97,9 @@ const ORDER: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  */
 export function comparePlans(spec: NetworkSpec, options: { plans?: readonly PrecisionPlan[]; steps?: number; seed?: number } = {}): PlanComparison {
   const own = [spec.precision, ...spec.plans];
-  const plans = options.plans ?? [...STANDARD_PLANS, ...own.filter((p) => !STANDARD_PLANS.some((s) => s.name === p.name))];
+  // a standard plan that one of the spec's own plans repeats (same formats and options) is listed once, by the spec's name
+  const plans =
+    options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s)) && !own.some((p) => p.name === s.name)), ...own];
   const built = buildGraph(spec);
   if (!built.ok) throw new RangeError(`the spec's network cannot be built: ${built.issues.map((i) => i.message).join("; ")}`);
 
@@ -145,6 +147,21 @@ export function comparePlans(spec: NetworkSpec, options: { plans?: readonly Prec
     caution:
       "These rankings rest on estimates, not guarantees: confirm the chosen plan with a short run of a few hundred steps before a long one.",
   };
+}
+
+function samePlan(a: PrecisionPlan, b: PrecisionPlan): boolean {
+  return (
+    a.activations === b.activations &&
+    a.weights === b.weights &&
+    a.gradients === b.gradients &&
+    a.optimizerStates === b.optimizerStates &&
+    a.masterWeights === b.masterWeights &&
+    a.accumulate === b.accumulate &&
+    a.lossScale === b.lossScale &&
+    a.scaling === b.scaling &&
+    a.overflow === b.overflow &&
+    a.flushSubnormals === b.flushSubnormals
+  );
 }
 
 function firstProblem(result: CheckResult, optimizer: OptimizerCheck, answer: LossScaleAnswer | null): string | null {

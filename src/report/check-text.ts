@@ -2,6 +2,7 @@
  * The terminal rendering of a check: a verdict per format with its reasons, the tensors at risk, the operation
  * hazards, the assumptions and the caution. Pure: a CheckResult in, a string out.
  */
+import type { CheckAnswer } from "../check.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorFormatRisk, Verdict } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
@@ -16,6 +17,42 @@ export interface CheckTextOptions {
   style?: Style;
   /** wrap sentences at this many columns (default 100) */
   width?: number;
+}
+
+/** The loss-scale answer and the optimizer check, as two short sections. */
+export function renderDecisions(result: CheckAnswer, width: number, style: Style = PLAIN): string {
+  let out = "";
+  const answer = result.lossScaleAnswer;
+  out += "\n" + style.role("strong", "Loss scale") + "\n";
+  if (answer === null) {
+    out += wrap(`gradients are held in ${result.plan.gradients}: no loss scale is needed.`, width, "  ", "  ");
+  } else {
+    for (const sentence of answer.sentences) out += wrap(sentence, width, "  ", "  ");
+    answer.remedies.forEach((remedy, i) =>
+      out += wrap(`${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`, width, `  ${i + 1}. `, "     "),
+    );
+    const d = answer.dynamic;
+    if (d && answer.remedies.length === 0) {
+      out += wrap(
+        `dynamic scaling (simulated over ${d.steps} steps, seed ${d.seed}): ${d.skippedSteps} skipped steps, settling between ${formatValue(d.settledLowest)} and ${formatValue(d.settledHighest)}.`,
+        width,
+        "  ",
+        "  ",
+      );
+    }
+  }
+  const optimizer = result.optimizer;
+  out += "\n" + style.role("strong", "Optimizer") + ` ${optimizer.kind}: ${verdictText(optimizer.verdict, style)}\n`;
+  out += wrap(
+    `updates are added to ${optimizer.weightFormat === optimizer.updateFormat && result.plan.masterWeights === "none" ? "the stored" : "a master copy in"} ${optimizer.updateFormat}${optimizer.epsilon ? `; epsilon ${optimizer.epsilon.value} is held as ${formatValue(optimizer.epsilon.stored)} in ${optimizer.stateFormat}` : ""}.`,
+    width,
+    "  ",
+    "  ",
+  );
+  if (optimizer.reasons.length === 0) out += wrap("no update is lost and the states keep their values.", width, "  ", "  ");
+  for (const reason of optimizer.reasons) out += wrap(reason, width, "  - ", "    ");
+  optimizer.remedies.forEach((remedy, i) => (out += wrap(`remedy: ${remedy}`, width, `  ${i + 1}. `, "     ")));
+  return out;
 }
 
 /** How a verdict reads. */
@@ -193,6 +230,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   out += wrap(`plan ${result.plan.name}: ${describePlan(result.plan)}.`, width, "", "  ");
   out += wrap(describeLossScale(result.lossScale), width, "", "  ");
 
+  out += "\n" + style.role("strong", "Verdict") + ` ${verdictText(result.verdict, style)}\n`;
   out += "\n" + style.role("strong", "Verdict per format") + "\n";
   const formatWidth = Math.max(...result.formats.map((f) => f.format.length));
   for (const format of result.formats) {
@@ -208,6 +246,8 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
       out += `    - and ${format.reasons.length - shown.length} more kinds of finding (--json lists every one).\n`;
     }
   }
+
+  if ("optimizer" in result) out += renderDecisions(result as CheckAnswer, width, style);
 
   const rows = tensorRows(result, all);
   const judgedCount = result.tensors.reduce((n, t) => n + t.risks.filter((r) => r.judged).length, 0);

@@ -219,7 +219,10 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
     const statistics = tensorStatistics(tensor, lossScale.value, thresholds);
     const risks = formats.flatMap((format) => {
       const evaluated = plans.get(format) ?? plan;
-      const judged = evaluated[tensor.slot] === format;
+      // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
+      // FP32); the loss-value hazard covers a loss kept in the activation format
+      const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+      const judged = evaluated[entry] === format;
       if (!judged && !options.everyFormat) return [];
       return [
         tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {

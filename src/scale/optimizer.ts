@@ -98,7 +98,8 @@ export function swampedShare(
   const centre = Math.floor(Math.log2(weight.rms));
   const low = centre - 40;
   const high = centre + 12;
-  const F = (t: number) => fractionBelow(weight, t);
+  // P(|w| < t): a binade is [2^e, 2^(e+1)), so a weight exactly at 2^e belongs to binade e, not e − 1
+  const F = (t: number) => fractionBelow(weight, t * (1 - 2 ** -40));
   // mass below the lowest binade considered: charge it the loss of that binade (an upper bound, negligible mass)
   let previous = F(2 ** low);
   let nonzeroLost = previous * updateBelow(2 ** (Math.max(low, format.emin) - p));
@@ -158,8 +159,11 @@ function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr:
 function schedule(optimizer: OptimizerSpec): { at: SchedulePoint; lr: number; firstStep: boolean }[] {
   const points: { at: SchedulePoint; lr: number; firstStep: boolean }[] = [];
   const { peak, end } = optimizer.learningRate;
-  // linear warm-up from peak/warmupSteps (common practice)
-  if (optimizer.warmupSteps > 0) points.push({ at: "warm-up start", lr: peak / optimizer.warmupSteps, firstStep: true });
+  // linear warm-up from near 0 (common practice); judged one hundredth of the way in (or at its first step when
+  // shorter), since the very first updates of any warm-up are vanishingly small in every format
+  if (optimizer.warmupSteps > 0) {
+    points.push({ at: "warm-up start", lr: peak * Math.max(1 / optimizer.warmupSteps, 0.01), firstStep: true });
+  }
   points.push({ at: "peak", lr: peak, firstStep: optimizer.warmupSteps === 0 });
   if (end !== peak) points.push({ at: "end", lr: end, firstStep: false });
   return points;

@@ -5,13 +5,10 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelow, probabilityAnyAbove, rangeLimits, scaleProfile, type RangeLimits } from "../risk/index.js";
+import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
-
-/** Roles the loss scale multiplies and that are stored in the gradient format (Micikevicius et al. 2018 §3.2). */
-const SCALED_GRADIENT_ROLES = new Set(["activation-gradient", "weight-gradient"]);
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
 export interface ScaleRemedy {
@@ -41,7 +38,8 @@ export interface LossScaleAnswer {
   /** plain sentences: the answer, the edges and what sets them */
   sentences: string[];
   remedies: ScaleRemedy[];
-  dynamic: DynamicScaleResult;
+  /** the simulated dynamic scale; null unless asked for or the window is empty (it is then a remedy) */
+  dynamic: DynamicScaleResult | null;
 }
 
 export interface LossScaleOptions {
@@ -49,6 +47,8 @@ export interface LossScaleOptions {
   dynamic?: Partial<DynamicScaleSettings>;
   /** steps of the horizon the dynamic scale is simulated over (the spec's horizon; default 10,000) */
   steps?: number;
+  /** simulate the dynamic scale always, or only when no static scale exists (the default) */
+  simulate?: "always" | "when-empty";
   seed?: number;
 }
 
@@ -64,40 +64,8 @@ export function profileAt(tensor: TensorPrediction, progress: number): TensorPre
   return { ...start, rms, log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress };
 }
 
-/** Curves of one gradient tensor: overflow at the larger of its start/end profiles, flushing at the smaller. */
-export function gradientCurves(tensor: TensorPrediction, limits: RangeLimits): ScaledTensorCurves {
-  const risk = new Map<number, number>();
-  const flush = new Map<number, number>();
-  return {
-    id: tensor.id,
-    overflowRisk(k) {
-      let r = risk.get(k);
-      if (r === undefined) {
-        const s = 2 ** k;
-        r = Math.max(
-          probabilityAnyAbove(scaleProfile(tensor.start, s), limits.overflowLevel),
-          probabilityAnyAbove(scaleProfile(tensor.end, s), limits.overflowLevel),
-        );
-        risk.set(k, r);
-      }
-      return r;
-    },
-    flushedEnergy(k) {
-      let f = flush.get(k);
-      if (f === undefined) {
-        const s = 2 ** k;
-        f = Math.max(energyBelow(scaleProfile(tensor.start, s), limits.flushBound), energyBelow(scaleProfile(tensor.end, s), limits.flushBound));
-        flush.set(k, f);
-      }
-      return f;
-    },
-  };
-}
-
 function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
-  const f = getFormat(format);
-  const eightBit = f.bits === 8;
-  return rangeLimits(f, { saturate: eightBit && plan.overflow === "saturate", flushSubnormals: plan.flushSubnormals });
+  return limitsFor({ ...plan, gradients: format }, format);
 }
 
 /**
@@ -108,8 +76,9 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
-  const gradients = prediction.tensors.filter((t) => SCALED_GRADIENT_ROLES.has(t.role));
-  const curves = gradients.map((t) => gradientCurves(t, limits));
+  const curves = lossScaleCurves(prediction.tensors, limits);
+  const ids = new Set(curves.map((c) => c.id));
+  const gradients = prediction.tensors.filter((t) => ids.has(t.id));
   const window = lossScaleWindow(curves, windowOptions);
   const pick = window.pickLog2 === null ? null : 2 ** window.pickLog2;
   const requested =
@@ -121,15 +90,18 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
         };
 
   const byId = new Map(gradients.map((t) => [t.id, t] as const));
-  const dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions), {
-    steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
-    seed: options.seed ?? 1,
-    horizonPoints: 8,
-    ...(options.dynamic ? { settings: options.dynamic } : {}),
-  });
+  const dynamic =
+    window.empty || options.simulate === "always"
+      ? simulateDynamicScale(dynamicModel(gradients, limits, windowOptions), {
+          steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
+          seed: options.seed ?? 1,
+          horizonPoints: 8,
+          ...(options.dynamic ? { settings: options.dynamic } : {}),
+        })
+      : null;
 
   const sentences = describe(window, format, windowOptions, requested);
-  const remedies = window.empty ? rankRemedies(curves, byId, window, windowOptions, plan, dynamic) : [];
+  const remedies = window.empty && dynamic ? rankRemedies(curves, byId, window, windowOptions, plan, dynamic) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
@@ -227,7 +199,7 @@ function rankRemedies(
   // 3. bfloat16 gradients: the same tensors against bfloat16's range
   if (plan.gradients !== "bfloat16") {
     const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
-    const bfCurves = [...byId.values()].map((t) => gradientCurves(t, bf));
+    const bfCurves = lossScaleCurves([...byId.values()], bf);
     const w = lossScaleWindow(bfCurves, options);
     remedies.push({
       kind: "bfloat16-gradients",

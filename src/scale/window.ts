@@ -21,7 +21,7 @@ export interface WindowOptions {
   riskBudget: number;
   /** the largest tolerated share of one tensor's gradient energy flushed to zero */
   flushTolerance: number;
-  /** binades kept between the pick and the overflow edge, when the window allows */
+  /** the pick sits at the window's centre, but never closer than this many binades to the overflow edge when the window allows */
   marginBinades: number;
   /** the exponents searched */
   lowestLog2: number;
@@ -88,8 +88,10 @@ export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options:
   const empty = highest === null || lowest === null || lowest > highest;
   let pick: number | null = null;
   if (!empty) {
-    // as high as the margin allows (a larger scale costs nothing until it overflows), never below the flush edge
-    pick = Math.max(lowest!, highest! - o.marginBinades);
+    // the centre in binades leaves the most room on both sides for the prediction's own error; a scale costs
+    // nothing until it overflows (Micikevicius et al. 2018 §3.2), so round up, but keep the margin below overflow
+    const centre = Math.ceil((lowest! + highest!) / 2);
+    pick = Math.max(lowest!, Math.min(centre, highest! - o.marginBinades));
   }
   return {
     lowestLog2: lowest,

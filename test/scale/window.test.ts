@@ -24,13 +24,19 @@ describe("lossScaleWindow", () => {
     const w = lossScaleWindow([hard("g", 3, 2 ** -30)], { marginBinades: 2 });
     expect(w.highestLog2).toBe(14);
     expect(w.lowestLog2).toBe(6);
-    expect(w.pickLog2).toBe(12);
-    expect(w.marginBelowOverflow).toBe(2);
-    expect(w.marginAboveFlush).toBe(6);
+    expect(w.pickLog2).toBe(10); // the centre of [6, 14]
+    expect(w.marginBelowOverflow).toBe(4);
+    expect(w.marginAboveFlush).toBe(4);
     expect(w.empty).toBe(false);
     expect(w.unscaledFits).toBe(false);
     expect(w.upperEdgeSetBy).toBe("g");
     expect(w.lowerEdgeSetBy).toBe("g");
+  });
+
+  it("keeps the margin below the overflow edge when the centre would come closer", () => {
+    // window [6, 7]: centre rounds up to 7, the margin of 2 pulls it to 5, the flush edge lifts it back to 6
+    const w = lossScaleWindow([hard("g", 65504 / 2 ** 7, 2 ** -30)], { marginBinades: 2 });
+    expect([w.lowestLog2, w.highestLog2, w.pickLog2]).toEqual([6, 7, 6]);
   });
 
   it("names the tensor that sets each edge", () => {

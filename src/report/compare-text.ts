@@ -1,0 +1,63 @@
+/**
+ * The terminal rendering of a plan comparison: one row per plan, best first, then why the order is what it is.
+ * Pure: a PlanComparison in, a string out.
+ */
+import type { PlanComparison } from "../compare.js";
+import { formatBytes, formatPercent, formatPowerOfTwo } from "./number.js";
+import { PLAIN, type Style } from "./style.js";
+import { renderTable } from "./table.js";
+import { verdictText, wrap } from "./check-text.js";
+
+export interface CompareTextOptions {
+  style?: Style;
+  width?: number;
+}
+
+/** @example renderCompareText(comparePlans(spec)) // => "headroom compare: wide-classifier ...\n" */
+export function renderCompareText(comparison: PlanComparison, options: CompareTextOptions = {}): string {
+  const style = options.style ?? PLAIN;
+  const width = options.width ?? 100;
+  let out = style.role("heading", `headroom compare: ${comparison.spec.name}`) + ` (${comparison.spec.source})\n\n`;
+  const rows = comparison.outcomes.map((o, i) => [
+    String(i + 1),
+    o.plan.name + (o.fromSpec ? " (spec)" : ""),
+    verdictText(o.verdict, style),
+    o.lossScale === null ? "none" : formatPowerOfTwo(Math.log2(o.lossScale)),
+    `${o.cost.bytesPerParameter} B`,
+    `${o.cost.bytesPerActivation} B`,
+    formatBytes(o.cost.parameterBytes + o.cost.activationBytes),
+    o.plan.name === "binary32" ? "—" : formatPercent(o.savedShare),
+  ]);
+  out += renderTable(
+    [
+      { title: "rank", align: "right" },
+      { title: "plan" },
+      { title: "verdict" },
+      { title: "loss scale", align: "right" },
+      { title: "per parameter", align: "right" },
+      { title: "per activation", align: "right" },
+      { title: "memory", align: "right" },
+      { title: "saved", align: "right" },
+    ],
+    rows,
+    { indent: "  " },
+  );
+  out += style.role(
+    "muted",
+    wrap(
+      "per parameter: weights, master copy, gradients and optimizer states; memory: the spec's parameters plus one step's stored activations; saved: against all binary32.",
+      width,
+      "  ",
+      "  ",
+    ),
+  );
+  out += "\n" + style.role("strong", "Why this order") + "\n";
+  for (const line of comparison.explanation) out += wrap(line, width, "  - ", "    ");
+  out += "\n" + wrap(comparison.caution, width, "", "");
+  return out;
+}
+
+/** The comparison as JSON, two-space indented, with a trailing newline. */
+export function renderCompareJson(comparison: PlanComparison): string {
+  return JSON.stringify(comparison, null, 2) + "\n";
+}

@@ -1,0 +1,105 @@
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
+import { lossScaleAnswer } from "../../src/scale/recommend.js";
+import type { PrecisionPlan } from "../../src/spec/types.js";
+
+const plan: PrecisionPlan = {
+  name: "test",
+  activations: "binary16",
+  weights: "binary16",
+  gradients: "binary16",
+  optimizerStates: "binary32",
+  masterWeights: "binary32",
+  accumulate: "binary32",
+  overflow: "saturate",
+  flushSubnormals: false,
+  scaling: "none",
+};
+
+function gradient(id: string, profile: MagnitudeProfile): TensorPrediction {
+  return {
+    id,
+    layer: id.split("/")[0]!,
+    layerIndex: 0,
+    family: "dense",
+    role: "activation-gradient",
+    slot: "gradients",
+    shape: [profile.elements],
+    start: profile,
+    end: profile,
+    ledger: [],
+    source: "predicted",
+  };
+}
+
+const prediction = (...tensors: TensorPrediction[]): Prediction => ({ specName: "test", tensors, hazards: [], assumptions: [] });
+
+describe("lossScaleAnswer", () => {
+  // Micikevicius et al. 2018 §3.2: activation gradients of a detector sat mostly below binary16's subnormal range,
+  // and a loss scale of 8 (3 binades) sufficed. Gradients centred 3 binades below 2^-24, tightly spread
+  // (log-normal, half a binade), need S with 2^-27·S above the flush bound 2^-25 for nearly all their energy.
+  it("puts the lower edge near 8 for gradients centred 3 binades below 2^-24", () => {
+    const g = gradient("detector-head/activation-gradient", {
+      elements: 1e6,
+      zeroFraction: 0.67, // the paper's histogram: about two thirds exact zeros, which scaling does not change
+      shape: "log-normal",
+      rms: 2 ** -27,
+      log2Spread: 0,
+      elementLog2Spread: 0.5,
+    });
+    const answer = lossScaleAnswer(prediction(g), plan);
+    expect(answer.window.empty).toBe(false);
+    expect(answer.needed).toBe(true);
+    const lower = 2 ** answer.window.lowestLog2!;
+    expect(lower).toBeGreaterThanOrEqual(8);
+    expect(lower).toBeLessThanOrEqual(16); // within one binade of the paper's 8
+    expect(answer.pick).not.toBeNull();
+    expect(answer.window.lowerEdgeSetBy).toBe("detector-head/activation-gradient");
+  });
+
+  // Constructed so that the edges can be computed by hand: "large" has every element at 2^10, so it overflows
+  // binary16 (≥ 65520) from S = 2^6 on; "tiny" has every element at 2^-40, flushed until 2^-40·S > 2^-25, i.e.
+  // S ≥ 2^16. The window is empty by 11 binades (5 against 16). bfloat16 (flush-to-zero below 2^-126 by default) keeps both
+  // unscaled; a dynamic scale overflows constantly above 2^5 and flushes "tiny" below 2^16.
+  it("reports an empty window, the tensors that pull apart, and ranks remedies by computed effect", () => {
+    const constant = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "constant", rms, log2Spread: 0 });
+    const answer = lossScaleAnswer(prediction(gradient("large/activation-gradient", constant(2 ** 10)), gradient("tiny/activation-gradient", constant(2 ** -40))), plan, {
+      steps: 5000,
+    });
+    expect(answer.window.empty).toBe(true);
+    expect(answer.window.highestLog2).toBe(5);
+    expect(answer.window.lowestLog2).toBe(16);
+    expect(answer.window.gapBinades).toBe(11);
+    expect(answer.sentences[0]).toContain("large/activation-gradient");
+    expect(answer.sentences[0]).toContain("tiny/activation-gradient");
+    const kinds = answer.remedies.map((r) => [r.kind, r.works]);
+    expect(kinds).toContainEqual(["bfloat16-gradients", true]);
+    expect(kinds).toContainEqual(["dynamic-scale", false]);
+    const hold = answer.remedies.filter((r) => r.kind === "hold-in-binary32" && r.works);
+    expect(hold.map((r) => r.tensors)).toContainEqual(["tiny/activation-gradient"]);
+    expect(hold.map((r) => r.tensors)).toContainEqual(["large/activation-gradient"]);
+  });
+
+  it("finds that holding one named tensor in binary32 is the only fix when bfloat16 cannot hold it either", () => {
+    const constant = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "constant", rms, log2Spread: 0 });
+    // "tiny" at 2^-200 is below even bfloat16's smallest subnormal 2^-133 and would need S ≥ 2^176 in binary16,
+    // beyond the searched scales (up to 2^64) in either format
+    const answer = lossScaleAnswer(prediction(gradient("body/activation-gradient", constant(1)), gradient("tiny/activation-gradient", constant(2 ** -200))), plan, {
+      steps: 2000,
+    });
+    expect(answer.window.empty).toBe(true);
+    const working = answer.remedies.filter((r) => r.works);
+    expect(working).toHaveLength(1);
+    expect(working[0]!.kind).toBe("hold-in-binary32");
+    expect(working[0]!.tensors).toEqual(["tiny/activation-gradient"]);
+    expect(working[0]!.window!.unscaledFits).toBe(true);
+  });
+
+  it("says no scale is needed when S = 1 lies in the window", () => {
+    const g = gradient("g/activation-gradient", { elements: 1e4, zeroFraction: 0, shape: "gaussian", rms: 1e-2, log2Spread: 0.3 });
+    const answer = lossScaleAnswer(prediction(g), plan);
+    expect(answer.needed).toBe(false);
+    expect(answer.sentences[0]).toMatch(/need no loss scale/);
+    expect(answer.dynamic).toBeNull();
+  });
+});
