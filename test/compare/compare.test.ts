@@ -1,0 +1,86 @@
+import { readFileSync, readdirSync } from "node:fs";
+import { join } from "node:path";
+import { describe, expect, it } from "vitest";
+import { comparePlans, STANDARD_PLANS } from "../../src/compare.js";
+import { renderCompareJson, renderCompareText } from "../../src/report/compare-text.js";
+import { loadSpec } from "../../src/spec/index.js";
+import { ROOT, runCli } from "../helpers/run.js";
+
+const examples = readdirSync(join(ROOT, "specs")).filter((f) => f.endsWith(".yaml")).sort();
+
+describe("comparePlans on every example spec (golden results made by scripts/golden-compare.mjs)", () => {
+  for (const file of examples) {
+    it(file, async () => {
+      process.chdir(ROOT);
+      const loaded = await loadSpec(`specs/${file}`);
+      expect(loaded.ok).toBe(true);
+      if (!loaded.ok) return;
+      const comparison = comparePlans(loaded.spec);
+      const golden = readFileSync(join(ROOT, "test", "golden", "compare", file.replace(".yaml", ".json")), "utf8");
+      expect(renderCompareJson(comparison)).toBe(golden);
+      // the ranking is explained: the first line names the best plan, or says none trains safely
+      const best = comparison.outcomes[0]!;
+      expect(comparison.explanation[0]).toContain(best.trainsSafely ? best.plan.name : "No plan");
+      // plans that train safely come before those that do not, and among them the cheapest first
+      const safe = comparison.outcomes.filter((o) => o.trainsSafely);
+      expect(comparison.outcomes.slice(0, safe.length)).toEqual(safe);
+      const bytes = safe.map((o) => o.cost.parameterBytes + o.cost.activationBytes);
+      expect([...bytes].sort((a, b) => a - b)).toEqual(bytes);
+    });
+  }
+});
+
+describe("plan costs", () => {
+  it("counts bytes per parameter from the formats (IEEE 754-2019 widths; Adam keeps two states, common practice)", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/wide-classifier.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const only = (name: string) => STANDARD_PLANS.filter((p) => p.name === name);
+    const f32 = comparePlans(loaded.spec, { plans: only("binary32") }).outcomes[0]!;
+    // weights 4 + gradients 4 + two Adam states 4 + 4, no master copy
+    expect(f32.cost.bytesPerParameter).toBe(16);
+    expect(f32.cost.bytesPerActivation).toBe(4);
+    const mixed = comparePlans(loaded.spec, { plans: only("binary16 with master copy") }).outcomes[0]!;
+    // weights 2 + master 4 + gradients 2 + states 4 + 4
+    expect(mixed.cost.bytesPerParameter).toBe(16);
+    expect(mixed.cost.bytesPerActivation).toBe(2);
+    const bare = comparePlans(loaded.spec, { plans: only("bfloat16 only") }).outcomes[0]!;
+    expect(bare.cost.bytesPerParameter).toBe(8);
+  });
+});
+
+describe("headroom compare (the built binary)", () => {
+  it("prints the ranked table and the reasons, exit 0 when a plan trains safely", () => {
+    const run = runCli(["compare", "specs/wide-classifier.yaml"]);
+    expect(run.stderr).toBe("");
+    expect(run.status).toBe(0);
+    expect(run.stdout).toContain("headroom compare: wide-classifier");
+    expect(run.stdout).toContain("Why this order");
+    expect(run.stdout).toMatch(/estimates/);
+  });
+
+  it("--json parses and --only-spec-plans keeps the spec's own plans", () => {
+    const run = runCli(["compare", "specs/wide-classifier.yaml", "--json", "--only-spec-plans"]);
+    expect(run.status).toBe(0);
+    const parsed = JSON.parse(run.stdout) as { outcomes: { plan: { name: string }; fromSpec: boolean }[] };
+    expect(parsed.outcomes.every((o) => o.fromSpec)).toBe(true);
+    expect(parsed.outcomes.map((o) => o.plan.name).sort()).toEqual(["mixed-bfloat16", "mixed-binary16"]);
+  });
+
+  it("input errors: a missing file and a broken spec exit 2 without a stack trace", () => {
+    const missing = runCli(["compare", "specs/no-such.yaml"]);
+    expect(missing.status).toBe(2);
+    expect(missing.stderr).not.toMatch(/\n\s+at /);
+    const broken = runCli(["compare", "-"], { input: "" });
+    expect(broken.status).toBe(2);
+  });
+
+  it("renders text without colour when asked for plain output", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/wide-classifier.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const text = renderCompareText(comparePlans(loaded.spec, { plans: STANDARD_PLANS.slice(0, 2) }));
+    expect(text).not.toMatch(/\x1b\[/);
+    expect(text.split("\n")[0]).toBe("headroom compare: wide-classifier (specs/wide-classifier.yaml)");
+  });
+});
