@@ -2,7 +2,7 @@
  * Precision plans side by side: which ones train safely, what breaks first in the others, and what each costs
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
-import { check } from "./check.js";
+import { check, needsLossScale } from "./check.js";
 import { getFormat } from "./formats/index.js";
 import { buildGraph } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
@@ -106,8 +106,7 @@ export function comparePlans(spec: NetworkSpec, options: { plans?: readonly Prec
   const outcomes = plans.map((plan): PlanOutcome => {
     const planned: NetworkSpec = { ...spec, precision: plan };
     const prediction = predict(built.graph, planned);
-    const reduced = getFormat(plan.gradients).precision < getFormat("binary32").precision;
-    const answer = reduced ? lossScaleAnswer(prediction, plan, { steps: options.steps ?? spec.training.horizon.steps, seed: options.seed ?? 1 }) : null;
+    const answer = needsLossScale(plan) ? lossScaleAnswer(prediction, plan, { steps: options.steps ?? spec.training.horizon.steps, seed: options.seed ?? 1 }) : null;
     const lossScale = plan.lossScale ?? (answer && answer.needed && answer.pick !== null ? answer.pick : null);
     const result = check(planned, lossScale === null ? {} : { lossScale });
     const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
