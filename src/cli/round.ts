@@ -122,21 +122,42 @@ interface RoundCommandOptions {
   json?: boolean;
 }
 
-/** Writes through a buffer, flushing at 64 KiB and waiting for the stream to drain (a million lines stay flat in memory). */
+/**
+ * Writes through a buffer, flushing at 64 KiB and waiting for the stream to drain (a million lines stay flat in
+ * memory). When the reader goes away (`| head`), the stream's EPIPE is rethrown from the next write, which stops
+ * the command quietly (main treats a broken pipe as a normal end).
+ */
 class Output {
   private chunks: string[] = [];
   private size = 0;
+  private broken: Error | undefined;
+  private wake: (() => void) | undefined;
+  constructor() {
+    process.stdout.on("error", (error: Error) => {
+      this.broken = error;
+      this.wake?.();
+    });
+  }
   async write(text: string): Promise<void> {
+    if (this.broken) throw this.broken;
     this.chunks.push(text);
     this.size += text.length;
     if (this.size >= 65536) await this.flush();
   }
   async flush(): Promise<void> {
+    if (this.broken) throw this.broken;
     if (this.size === 0) return;
     const text = this.chunks.join("");
     this.chunks = [];
     this.size = 0;
-    if (!process.stdout.write(text)) await new Promise<void>((resolve) => process.stdout.once("drain", resolve));
+    if (!process.stdout.write(text)) {
+      await new Promise<void>((resolve) => {
+        this.wake = resolve;
+        process.stdout.once("drain", resolve);
+      });
+      this.wake = undefined;
+    }
+    if (this.broken) throw this.broken;
   }
 }
 

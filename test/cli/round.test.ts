@@ -126,3 +126,14 @@ describe("the README's round example", () => {
     expect(readme).toContain("```\n" + run.stdout + "```");
   });
 });
+
+describe("a reader that stops early", () => {
+  it("ends quietly with exit code 0 when stdout closes (| head), no stack trace", async () => {
+    const { spawnSync } = await import("node:child_process");
+    const { BIN } = await import("../helpers/run.js");
+    const script = `seq 1 300000 | "${process.execPath}" "${BIN}" round - --to binary16 | head -n 2 >/dev/null; echo "status=\${PIPESTATUS[1]}"`;
+    const run = spawnSync("bash", ["-c", script], { encoding: "utf8" });
+    expect(run.stdout.trim()).toBe("status=0");
+    expect(run.stderr).toBe("");
+  });
+});
