@@ -40,8 +40,10 @@ function ensurePackA(size: number): Float64Array {
  * General matrix product C = A·B (beta = 0) or C += A·B (beta = 1), with C row-major.
  * A is m×k, element (i, p) at a[aOffset + i·aRowStride + p·aColStride]; B is k×n, element (p, j) at
  * b[bOffset + p·bRowStride + j·bColStride]; C is m×n, element (i, j) at c[cOffset + i·cRowStride + j].
- * When `accumulate` is given, every partial sum is rounded by it after each addition (a narrow accumulate
- * format); the summation order is then sequential over the inner index, as a simple accumulator would be.
+ * When `accumulate` is given, every product and every partial sum is rounded by it (a narrow accumulate format).
+ * For `Math.fround` (binary32) the blocked path keeps one binary32 accumulator per output and block of 256 inner
+ * terms, summed in order, then adds the block sums into C with one more rounding, as blocked hardware units do;
+ * any other rounding function runs a sequential loop, one accumulator per output summed in order.
  * Cost: 2·m·n·k floating-point operations.
  */
 export function gemm(
@@ -67,7 +69,8 @@ export function gemm(
     for (let i = 0; i < m; i++) c.fill(0, cOffset + i * cRowStride, cOffset + i * cRowStride + n);
   }
   if (k <= 0) return;
-  if (accumulate !== undefined) {
+  const binary32 = accumulate === Math.fround;
+  if (accumulate !== undefined && !binary32) {
     gemmRounded(m, n, k, a, aOffset, aRowStride, aColStride, b, bOffset, bRowStride, bColStride, c, cOffset, cRowStride, accumulate);
     return;
   }
@@ -110,7 +113,9 @@ export function gemm(
         for (let ip = 0; ip < mPanels; ip++) {
           const i0 = ip * MR;
           const rows = Math.min(MR, mc - i0);
-          microKernel(kc, pa, ip * MR * kc, pb, jp * NR * kc, c, cOffset + (ic + i0) * cRowStride + j0, cRowStride, rows, cols);
+          const cBase = cOffset + (ic + i0) * cRowStride + j0;
+          if (binary32) microKernelBinary32(kc, pa, ip * MR * kc, pb, jp * NR * kc, c, cBase, cRowStride, rows, cols);
+          else microKernel(kc, pa, ip * MR * kc, pb, jp * NR * kc, c, cBase, cRowStride, rows, cols);
         }
       }
     }
@@ -160,6 +165,45 @@ function microKernel(
   const tile = [c00, c01, c02, c03, c10, c11, c12, c13, c20, c21, c22, c23, c30, c31, c32, c33];
   for (let ii = 0; ii < rows; ii++) {
     for (let jj = 0; jj < cols; jj++) c[cBase + ii * ldc + jj] = c[cBase + ii * ldc + jj]! + tile[ii * NR + jj]!;
+  }
+}
+
+/** The tile kernel with binary32 accumulators: each product and each partial sum rounded by Math.fround. */
+function microKernelBinary32(
+  kc: number,
+  pa: Float64Array,
+  aBase: number,
+  pb: Float64Array,
+  bBase: number,
+  c: Float64Array,
+  cBase: number,
+  ldc: number,
+  rows: number,
+  cols: number,
+): void {
+  const f = Math.fround;
+  let c00 = 0, c01 = 0, c02 = 0, c03 = 0;
+  let c10 = 0, c11 = 0, c12 = 0, c13 = 0;
+  let c20 = 0, c21 = 0, c22 = 0, c23 = 0;
+  let c30 = 0, c31 = 0, c32 = 0, c33 = 0;
+  let ai = aBase;
+  let bi = bBase;
+  for (let p = 0; p < kc; p++) {
+    const a0 = pa[ai]!, a1 = pa[ai + 1]!, a2 = pa[ai + 2]!, a3 = pa[ai + 3]!;
+    const b0 = pb[bi]!, b1 = pb[bi + 1]!, b2 = pb[bi + 2]!, b3 = pb[bi + 3]!;
+    c00 = f(c00 + f(a0 * b0)); c01 = f(c01 + f(a0 * b1)); c02 = f(c02 + f(a0 * b2)); c03 = f(c03 + f(a0 * b3));
+    c10 = f(c10 + f(a1 * b0)); c11 = f(c11 + f(a1 * b1)); c12 = f(c12 + f(a1 * b2)); c13 = f(c13 + f(a1 * b3));
+    c20 = f(c20 + f(a2 * b0)); c21 = f(c21 + f(a2 * b1)); c22 = f(c22 + f(a2 * b2)); c23 = f(c23 + f(a2 * b3));
+    c30 = f(c30 + f(a3 * b0)); c31 = f(c31 + f(a3 * b1)); c32 = f(c32 + f(a3 * b2)); c33 = f(c33 + f(a3 * b3));
+    ai += MR;
+    bi += NR;
+  }
+  const tile = [c00, c01, c02, c03, c10, c11, c12, c13, c20, c21, c22, c23, c30, c31, c32, c33];
+  for (let ii = 0; ii < rows; ii++) {
+    for (let jj = 0; jj < cols; jj++) {
+      const at = cBase + ii * ldc + jj;
+      c[at] = f(c[at]! + tile[ii * NR + jj]!);
+    }
   }
 }
 

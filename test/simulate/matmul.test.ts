@@ -63,7 +63,7 @@ describe("blocked matrix products", () => {
     expect(c[13]).toBe(before[13]);
   });
 
-  it("with a rounded accumulator equals a sequential sum rounded after every step (Math.fround as binary32)", () => {
+  it("with binary32 accumulation (Math.fround, IEEE 754-2019 binary32) equals a sequential sum rounded after every step, for inner lengths within one block", () => {
     fc.assert(
       fc.property(fc.integer({ min: 1, max: 9 }), fc.integer({ min: 1, max: 40 }), fc.integer({ min: 1, max: 9 }), fc.integer(), (m, k, n, seed) => {
         const rnd = testRandom(seed);
@@ -81,6 +81,16 @@ describe("blocked matrix products", () => {
       }),
       { numRuns: 50 },
     );
+  });
+
+  it("with another rounding function accumulates sequentially, rounding every product and partial sum", () => {
+    // a coarse grid (multiples of 1/4) makes the rounding visible: 0.3·1 → 0.25, 0.25 + 0.3 → 0.5 (nearest)
+    const quarter = (x: number): number => Math.round(x * 4) / 4;
+    const c = new Float64Array(1);
+    matmul(Float64Array.from([0.3, 0.3, 0.3]), Float64Array.from([1, 1, 1]), c, 1, 3, 1, false, quarter);
+    expect(c[0]).toBe(0.75);
+    matmul(Float64Array.from([0.3, 0.3, 0.3]), Float64Array.from([1, 1, 1]), c, 1, 3, 1);
+    expect(c[0]).toBeCloseTo(0.9, 15);
   });
 
   it("propagates IEEE specials instead of throwing", () => {

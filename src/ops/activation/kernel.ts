@@ -3,38 +3,13 @@
  * last dimension. Forward takes the pre-activation z; backward takes z, the output y and the upstream dy.
  */
 import type { ActivationName } from "../../spec/types.js";
+import { erf } from "./moments.js";
 
 /** Activations applied element by element (softmax works on rows). */
 export type ElementwiseActivation = Exclude<ActivationName, "softmax">;
 
 const INV_SQRT_2PI = 0.3989422804014327;
-const INV_SQRT_PI = 0.5641895835477563;
 const SQRT1_2 = Math.SQRT1_2;
-
-/**
- * erf(x) to about 1e-15 relative: the all-positive series (2/√π)·e^{−x²}·Σ 2^n x^{2n+1}/(1·3·…·(2n+1)) for
- * |x| < 2.5 (Abramowitz & Stegun 7.1.6) and 1 − erfc by its continued fraction beyond (A&S 7.1.14).
- */
-export function erf(x: number): number {
-  const ax = Math.abs(x);
-  if (Number.isNaN(x)) return NaN;
-  if (ax < 2.5) {
-    const x2 = x * x;
-    let term = x;
-    let sum = x;
-    for (let n = 1; n < 200; n++) {
-      term *= (2 * x2) / (2 * n + 1);
-      sum += term;
-      if (Math.abs(term) < 1e-17 * Math.abs(sum)) break;
-    }
-    return 2 * INV_SQRT_PI * Math.exp(-x2) * sum;
-  }
-  if (ax > 6) return x > 0 ? 1 : -1;
-  let f = ax;
-  for (let n = 60; n >= 1; n--) f = ax + n / 2 / f;
-  const erfc = (Math.exp(-ax * ax) * INV_SQRT_PI) / f;
-  return x > 0 ? 1 - erfc : erfc - 1;
-}
 
 function sigmoid(z: number): number {
   // written two ways so exp never overflows (common practice)

@@ -6,7 +6,10 @@
  * or not; a causal mask gives future positions probability exactly 0.
  *
  * Every intermediate tensor is handed to the optional `onTensor` hook as soon as it is computed, so a caller can
- * measure it or round it in place to a storage format before it is used further.
+ * measure it or round it in place to a storage format before it is used further. "query" is the projection
+ * x·Wqᵀ before any scaling and "query-gradient" the gradient with respect to it; "logits" are the scaled logits
+ * that enter the softmax and "logits-gradient" the gradient with respect to them; "context" is the heads'
+ * output before the output projection.
  */
 import { gemm, type RoundFunction } from "../../simulate/matmul.js";
 import { denseBackward, denseForward } from "../dense/kernel.js";
@@ -79,8 +82,9 @@ export function attentionForward(
   const inner = H * dh;
   const invSqrt = 1 / Math.sqrt(dh);
   const query = denseForward(x, w.query, null, rows, D, inner, accumulate);
-  if (cfg.scaling === "query") scale(query, invSqrt);
+  // the hook sees the projection as stored (x·Wqᵀ); the 1/√d scaling is applied to it afterwards
   onTensor?.("query", query);
+  if (cfg.scaling === "query") scale(query, invSqrt);
   const key = denseForward(x, w.key, null, rows, D, inner, accumulate);
   onTensor?.("key", key);
   const value = denseForward(x, w.value, null, rows, D, inner, accumulate);

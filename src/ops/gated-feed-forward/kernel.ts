@@ -16,14 +16,20 @@ import type { ActivationName } from "../../spec/types.js";
 
 /** Names of the intermediate tensors passed to `onTensor`. */
 export type GatedTensorName =
-  | "gate-pre-activation"
+  /** x·Wgᵀ, before the activation */
   | "gate"
+  /** φ(x·Wgᵀ) */
+  | "gate-activation"
+  /** x·Wuᵀ */
   | "up"
-  | "hidden"
-  | "hidden-gradient"
-  | "gate-gradient"
+  /** φ(gate) ⊙ up, the input of the down projection */
+  | "product"
+  | "product-gradient"
+  /** gradient with respect to φ(gate) */
+  | "gate-activation-gradient"
   | "up-gradient"
-  | "gate-pre-activation-gradient";
+  /** gradient with respect to the gate pre-activation x·Wgᵀ */
+  | "gate-gradient";
 
 /** The weights of a gated feed-forward layer. */
 export interface GatedWeights {
@@ -60,14 +66,14 @@ export function gatedForward(
   accumulate?: RoundFunction,
 ): { y: Float64Array; saved: GatedSaved } {
   const gatePre = denseForward(x, w.gate, null, rows, width, hidden, accumulate);
-  onTensor?.("gate-pre-activation", gatePre);
+  onTensor?.("gate", gatePre);
   const gate = applyActivation(activation, gatePre, rows, hidden, slope);
-  onTensor?.("gate", gate);
+  onTensor?.("gate-activation", gate);
   const up = denseForward(x, w.up, null, rows, width, hidden, accumulate);
   onTensor?.("up", up);
   const h = new Float64Array(rows * hidden);
   for (let i = 0; i < h.length; i++) h[i] = gate[i]! * up[i]!;
-  onTensor?.("hidden", h);
+  onTensor?.("product", h);
   const y = denseForward(h, w.down, null, rows, hidden, width, accumulate);
   return { y, saved: { x, gatePre, gate, up, hidden: h } };
 }
@@ -87,20 +93,20 @@ export function gatedBackward(
 ): { dx: Float64Array; dweights: GatedWeights } {
   const down = denseBackward(saved.hidden, w.down, dy, rows, hidden, width, false, accumulate);
   const dh = down.dx;
-  onTensor?.("hidden-gradient", dh);
+  onTensor?.("product-gradient", dh);
   const dgate = new Float64Array(dh.length);
   const dup = new Float64Array(dh.length);
   for (let i = 0; i < dh.length; i++) {
     dgate[i] = dh[i]! * saved.up[i]!;
     dup[i] = dh[i]! * saved.gate[i]!;
   }
-  onTensor?.("gate-gradient", dgate);
+  onTensor?.("gate-activation-gradient", dgate);
   onTensor?.("up-gradient", dup);
   const dgatePre =
     activation === "softmax"
       ? softmaxBackward(saved.gate, dgate, rows, hidden)
       : activationBackward(activation, saved.gatePre, dgate, slope);
-  onTensor?.("gate-pre-activation-gradient", dgatePre);
+  onTensor?.("gate-gradient", dgatePre);
   const g = denseBackward(saved.x, w.gate, dgatePre, rows, width, hidden, false, accumulate);
   const u = denseBackward(saved.x, w.up, dup, rows, width, hidden, false, accumulate);
   const dx = new Float64Array(rows * width);

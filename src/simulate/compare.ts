@@ -1,0 +1,151 @@
+/**
+ * Measured against predicted: pairs each simulated tensor with the magnitude engine's prediction of the same id
+ * and states the difference in binades (log2 of measured over predicted rms) and in the fraction flushed when
+ * stored in the planned format.
+ */
+import { getFormat, type Format } from "../formats/index.js";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
+import { erf, normalCdf } from "../ops/activation/moments.js";
+import type { MeasuredTensor, SimulationResult } from "./types.js";
+
+/** How far apart prediction and measurement may be before a row counts as a disagreement. */
+export interface Tolerance {
+  /** |log2(measured rms / predicted rms)| */
+  binades: number;
+  /** |measured − predicted| flushed fraction */
+  flushed: number;
+}
+
+/** The standing tolerance: half a binade (a factor of about 1.41) and 0.05 of the elements flushed. */
+export const STANDING_TOLERANCE: Tolerance = { binades: 0.5, flushed: 0.05 };
+
+/** One tensor, measured and predicted side by side. */
+export interface ComparisonRow {
+  id: string;
+  layer: string;
+  role: MeasuredTensor["role"];
+  format: string;
+  measured: MeasuredTensor;
+  /** predicted rms of the nonzero elements (at the median draw), for the simulated network */
+  predictedRms: number;
+  /** log2(measured rms / predicted rms): positive when the measurement is larger */
+  differenceBinades: number;
+  predictedZeroFraction: number;
+  /** predicted share of elements flushed to zero in the format */
+  predictedFlushed: number;
+  /** predicted share of elements above the overflow threshold */
+  predictedOverflow: number;
+  /** the prediction for the full-size network, when the run was shrunk */
+  fullSizeRms?: number;
+  /** log2(full-size prediction / prediction for the shrunk network) */
+  sizeEffectBinades?: number;
+  /** whether the row is outside the tolerance */
+  disagrees: boolean;
+}
+
+/** The comparison of one simulation with one prediction. */
+export interface Comparison {
+  tolerance: Tolerance;
+  rows: ComparisonRow[];
+  /** the rows outside the tolerance, largest rms difference first */
+  disagreements: ComparisonRow[];
+  /** measured tensors the prediction does not list */
+  measuredOnly: string[];
+  /** predicted tensors the simulation does not measure */
+  predictedOnly: string[];
+}
+
+/** Smallest magnitude that survives storage: half the smallest subnormal, or the smallest normal when subnormals flush. */
+function flushThreshold(format: Format, flushSubnormals: boolean): number {
+  return flushSubnormals ? format.minNormal : format.flushBound;
+}
+
+/**
+ * P(|x| ≤ t) for one nonzero element of a profile, by its element shape: gaussian and half-gaussian
+ * erf(t/(rms·√2)); uniform on [−rms·√3, rms·√3]; constant magnitude rms; log-normal Φ((log2 t − m)/s) with
+ * m = log2(rms) − s²·ln 2 so that E[x²] = rms²; "bounded" taken as Gaussian below its bound (an approximation).
+ */
+export function fractionBelow(profile: MagnitudeProfile, t: number): number {
+  const rms = profile.rms;
+  if (!(rms > 0)) return 1;
+  if (!(t > 0)) return 0;
+  switch (profile.shape) {
+    case "gaussian":
+    case "half-gaussian":
+    case "bounded":
+      return erf(t / (rms * Math.SQRT2));
+    case "uniform":
+      return Math.min(t / (rms * Math.sqrt(3)), 1);
+    case "constant":
+      return rms <= t ? 1 : 0;
+    case "log-normal": {
+      const s = profile.elementLog2Spread ?? 0;
+      if (!(s > 0)) return rms <= t ? 1 : 0;
+      const m = Math.log2(rms) - s * s * Math.LN2;
+      return normalCdf((Math.log2(t) - m) / s);
+    }
+  }
+}
+
+/** Predicted share of all elements flushed to zero when stored in the format (exact zeros do not count). */
+export function predictedFlushedFraction(profile: MagnitudeProfile, format: Format, flushSubnormals = false): number {
+  return (1 - profile.zeroFraction) * fractionBelow(profile, flushThreshold(format, flushSubnormals));
+}
+
+/** Predicted share of all elements at or above the overflow threshold of the format. */
+export function predictedOverflowFraction(profile: MagnitudeProfile, format: Format): number {
+  if (!Number.isFinite(format.overflowThreshold)) return 0;
+  if (profile.bound !== undefined && profile.bound < format.overflowThreshold) return 0;
+  return (1 - profile.zeroFraction) * (1 - fractionBelow(profile, format.overflowThreshold));
+}
+
+/**
+ * Pair a simulation's tensors with a prediction for the simulated network (and, optionally, one for the
+ * full-size network) and find where they disagree.
+ */
+export function compareWithPrediction(
+  result: SimulationResult,
+  prediction: Prediction,
+  options: { tolerance?: Tolerance; fullSize?: Prediction } = {},
+): Comparison {
+  const tolerance = options.tolerance ?? STANDING_TOLERANCE;
+  const predicted = new Map<string, TensorPrediction>(prediction.tensors.map((t) => [t.id, t]));
+  const full = new Map<string, TensorPrediction>((options.fullSize?.tensors ?? []).map((t) => [t.id, t]));
+  const flushSubnormals = result.simulatedSpec.plans.concat(result.simulatedSpec.precision).find((p) => p.name === result.planName)?.flushSubnormals ?? false;
+  const rows: ComparisonRow[] = [];
+  const measuredOnly: string[] = [];
+  for (const measured of result.tensors) {
+    const p = predicted.get(measured.id);
+    if (p === undefined) {
+      measuredOnly.push(measured.id);
+      continue;
+    }
+    const format = getFormat(measured.median.counts.format);
+    const m = measured.median;
+    const differenceBinades = m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
+    const predictedFlushed = predictedFlushedFraction(p.start, format, flushSubnormals);
+    const row: ComparisonRow = {
+      id: measured.id,
+      layer: measured.layer,
+      role: measured.role,
+      format: format.name,
+      measured,
+      predictedRms: p.start.rms,
+      differenceBinades,
+      predictedZeroFraction: p.start.zeroFraction,
+      predictedFlushed,
+      predictedOverflow: predictedOverflowFraction(p.start, format),
+      disagrees: !(Math.abs(differenceBinades) <= tolerance.binades) || !(Math.abs(m.counts.flushed - predictedFlushed) <= tolerance.flushed),
+    };
+    const f = full.get(measured.id);
+    if (f !== undefined && result.shrink.shrunk) {
+      row.fullSizeRms = f.start.rms;
+      if (f.start.rms > 0 && p.start.rms > 0) row.sizeEffectBinades = Math.log2(f.start.rms / p.start.rms);
+    }
+    rows.push(row);
+  }
+  const measuredIds = new Set(result.tensors.map((t) => t.id));
+  const predictedOnly = prediction.tensors.filter((t) => !measuredIds.has(t.id)).map((t) => t.id);
+  const disagreements = rows.filter((r) => r.disagrees).sort((a, b) => Math.abs(b.differenceBinades) - Math.abs(a.differenceBinades));
+  return { tolerance, rows, disagreements, measuredOnly, predictedOnly };
+}

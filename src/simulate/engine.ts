@@ -1,0 +1,618 @@
+/**
+ * The float64 simulation engine: runs a network's training step forward and backward on random data, with
+ * every stored tensor rounded to its planned format, and measures each tensor on the way.
+ *
+ * One step: weights drawn from their initialisations (rounded to the weights format); random inputs at the
+ * spec's input scale (token ids uniform over the vocabulary); forward layer by layer (each output and inner
+ * tensor measured, then rounded to the activations format); the loss and its gradient, multiplied by the loss
+ * scale and divided by the accumulation steps (as the magnitude engine assumes); backward layer by layer (each
+ * gradient measured, then rounded to the gradients format); weight gradients summed over the micro-batches of
+ * the accumulation steps and workers (each micro-batch's gradient stored in the gradients format first),
+ * averaged over workers when the spec says so, measured and rounded. Products and their sums are rounded in the
+ * accumulate format when it is narrower than binary64. Optional optimizer steps follow, with the loss scale
+ * removed before the update, master weights and optimizer states in their formats.
+ *
+ * All randomness comes from one seeded source per draw (src/simulate/random.ts), never from a global one.
+ */
+import { getFormat, roundArrayInPlace, type Format, type RoundOptions } from "../formats/index.js";
+import { buildGraph, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
+import type { PlanSlot, TensorRole } from "../magnitude/types.js";
+import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
+import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
+import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
+import type { RoundFunction } from "./matmul.js";
+import { createRandomSource, type RandomSource } from "./random.js";
+import { checkMemory, shrinkSpec } from "./shrink.js";
+import { measureTensor, medianStats, selectElements } from "./stats.js";
+import type { MeasuredTensor, SimulateOptions, SimulationResult, StepRecord, TensorStats } from "./types.js";
+
+/** Default memory limit: 4 GiB. */
+export const DEFAULT_MEMORY_LIMIT = 4 * 2 ** 30;
+/** Default cap on micro-batches per step. */
+export const DEFAULT_MICRO_BATCHES = 8;
+
+interface TensorMeta {
+  id: string;
+  layer: string;
+  role: TensorRole;
+  slot: PlanSlot;
+  shape: number[];
+}
+
+/** Everything that stays fixed over a run: the graph, the formats and how to round. */
+interface Setup {
+  spec: NetworkSpec;
+  graph: Graph;
+  plan: PrecisionPlan;
+  formats: Record<PlanSlot, Format>;
+  master: Format | null;
+  roundOptions: RoundOptions;
+  round: boolean;
+  accumulate: RoundFunction | undefined;
+  lossScale: number;
+  microBatches: number;
+  wantedMicroBatches: number;
+}
+
+/** One draw's weights and optimizer state. */
+interface Model {
+  /** stored weights (in the weights format), by `<layer>/<weight name>` */
+  weights: Map<string, Float64Array>;
+  /** master copies (in the master format), when the plan keeps them */
+  master: Map<string, Float64Array>;
+  first: Map<string, Float64Array>;
+  second: Map<string, Float64Array>;
+  random: RandomSource;
+  step: number;
+}
+
+/** Collects measurements of one pass. */
+class Recorder {
+  readonly stats = new Map<string, { meta: TensorMeta; stats: TensorStats }>();
+  constructor(
+    readonly setup: Setup,
+    /** whether this micro-batch is measured (only the first is) */
+    public active: boolean,
+  ) {}
+
+  /** Measure (when active) and round in place to the slot's format. */
+  store(meta: TensorMeta, data: Float64Array, excluded?: Uint8Array): void {
+    if (this.active) this.measure(meta, data, excluded);
+    this.round(meta.slot, data);
+  }
+
+  measure(meta: TensorMeta, data: Float64Array, excluded?: Uint8Array): void {
+    const format = this.setup.formats[meta.slot];
+    this.stats.set(meta.id, { meta, stats: measureTensor(selectElements(data, excluded), format, this.setup.roundOptions) });
+  }
+
+  round(slot: PlanSlot, data: Float64Array): void {
+    if (this.setup.round) roundArrayInPlace(this.setup.formats[slot], data, this.setup.roundOptions);
+  }
+}
+
+function weightKey(layer: GraphLayer, w: GraphWeight | string): string {
+  return `${layer.name}/${typeof w === "string" ? w : w.name}`;
+}
+
+function weightId(layer: GraphLayer, name: string, role: "weight" | "weight-gradient"): string {
+  return `${layer.name}/${role}${name === "weight" ? "" : `:${name}`}`;
+}
+
+function layerWeights(model: Model, layer: GraphLayer): Record<string, Float64Array> {
+  const out: Record<string, Float64Array> = {};
+  for (const w of layer.weights) out[w.name] = model.weights.get(weightKey(layer, w))!;
+  return out;
+}
+
+function allLayers(layers: readonly GraphLayer[], out: GraphLayer[] = []): GraphLayer[] {
+  for (const layer of layers) {
+    if (layer.branch !== undefined) allLayers(layer.branch, out);
+    out.push(layer);
+  }
+  return out;
+}
+
+function batchShape(batch: number, shape: GraphLayer["output"]): number[] {
+  switch (shape.layout) {
+    case "tokens":
+      return [batch, shape.positions];
+    case "features":
+      return shape.positions === 1 ? [batch, shape.features] : [batch, shape.positions, shape.features];
+    case "image":
+      return [batch, shape.channels, shape.height, shape.width];
+  }
+}
+
+function elementsOf(shape: GraphLayer["output"]): number {
+  switch (shape.layout) {
+    case "tokens":
+      return shape.positions;
+    case "features":
+      return shape.positions * shape.features;
+    case "image":
+      return shape.channels * shape.height * shape.width;
+  }
+}
+
+/** Draw a weight from its initialisation. Orthogonal initialisations are drawn as Gaussians of the same variance. */
+function initialWeight(w: GraphWeight, random: RandomSource): Float64Array {
+  const data = new Float64Array(w.elements);
+  switch (w.distribution) {
+    case "normal": {
+      const std = Math.sqrt(w.variance);
+      for (let i = 0; i < data.length; i++) data[i] = std * random.normal();
+      break;
+    }
+    case "uniform": {
+      // U[−a, a] has variance a²/3 (common practice)
+      const a = Math.sqrt(3 * w.variance);
+      for (let i = 0; i < data.length; i++) data[i] = a * (2 * random.uniform() - 1);
+      break;
+    }
+    case "constant":
+      data.fill(w.value ?? 0);
+      break;
+    case "zeros":
+      break;
+  }
+  return data;
+}
+
+function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
+  const random = createRandomSource(seed);
+  const model: Model = { weights: new Map(), master: new Map(), first: new Map(), second: new Map(), random, step: 0 };
+  for (const layer of allLayers(setup.graph.layers)) {
+    for (const w of layer.weights) {
+      const data = initialWeight(w, random);
+      const key = weightKey(layer, w);
+      if (setup.master !== null) {
+        const master = Float64Array.from(data);
+        if (setup.round) roundArrayInPlace(setup.master, master, setup.roundOptions);
+        model.master.set(key, master);
+      }
+      recorder.store({ id: weightId(layer, w.name, "weight"), layer: layer.name, role: "weight", slot: "weights", shape: w.shape }, data);
+      model.weights.set(key, data);
+    }
+  }
+  return model;
+}
+
+/** Random inputs: Gaussian features or pixels at the spec's input scale, or token ids uniform over the vocabulary. */
+function makeInput(setup: Setup, random: RandomSource): Float64Array {
+  const { graph, spec } = setup;
+  const n = graph.batch * elementsOf(graph.input);
+  const x = new Float64Array(n);
+  if (spec.input.kind === "tokens") {
+    const first = graph.layers[0];
+    const vocabulary = first !== undefined && first.spec.family === "embedding" ? first.spec.vocabulary : 1;
+    for (let i = 0; i < n; i++) x[i] = random.integer(vocabulary);
+    return x;
+  }
+  const scale = spec.input.scale;
+  for (let i = 0; i < n; i++) x[i] = scale * random.normal();
+  return x;
+}
+
+interface Saved {
+  x: Float64Array;
+  forward: KernelForward;
+}
+
+/** One micro-batch: forward, loss, backward. Returns the loss and the weight gradients (rounded, scaled). */
+function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: number; gradients: Map<string, Float64Array> } {
+  const { graph, spec } = setup;
+  const random = model.random;
+  const saved = new Map<number, Saved>();
+  const gradients = new Map<string, Float64Array>();
+  const batch = graph.batch;
+
+  const context = (layer: GraphLayer, direction: "forward" | "backward"): KernelContext => {
+    const ctx: KernelContext = {
+      batch,
+      random: random.uniform,
+      store(info: InnerTensorInfo, data: Float64Array) {
+        const role = direction === "forward" ? info.role : "activation-gradient";
+        const id = `${layer.name}/${role}:${info.suffix}`;
+        recorder.store({ id, layer: layer.name, role, slot: role === "activation-gradient" ? "gradients" : "activations", shape: [data.length] }, data, info.excluded);
+      },
+    };
+    if (setup.accumulate !== undefined) ctx.accumulate = setup.accumulate;
+    if (layer.branch !== undefined) {
+      const branch = layer.branch;
+      if (direction === "forward") ctx.branchForward = (x) => forward(branch, x);
+      else ctx.branchBackward = (dy) => backward(branch, dy, false) ?? new Float64Array(dy.length);
+    }
+    return ctx;
+  };
+
+  function forward(layers: readonly GraphLayer[], input: Float64Array): Float64Array {
+    let x = input;
+    for (const layer of layers) {
+      const kernel = kernelFor(layer.family);
+      const result = kernel.forward(layer, x, layerWeights(model, layer), context(layer, "forward"));
+      const role = kernel.outputRole(layer);
+      recorder.store({ id: `${layer.name}/${role}`, layer: layer.name, role, slot: "activations", shape: batchShape(batch, layer.output) }, result.output);
+      saved.set(layer.index, { x, forward: result });
+      x = result.output;
+    }
+    return x;
+  }
+
+  function backward(layers: readonly GraphLayer[], output: Float64Array, seeded: boolean): Float64Array | undefined {
+    let dy: Float64Array | undefined = output;
+    for (let i = layers.length - 1; i >= 0 && dy !== undefined; i--) {
+      const layer = layers[i]!;
+      if (!(seeded && i === layers.length - 1)) {
+        recorder.store(
+          { id: `${layer.name}/activation-gradient`, layer: layer.name, role: "activation-gradient", slot: "gradients", shape: batchShape(batch, layer.output) },
+          dy,
+        );
+      }
+      const kernel = kernelFor(layer.family);
+      const s = saved.get(layer.index)!;
+      const result = kernel.backward(layer, dy, s.x, s.forward, layerWeights(model, layer), context(layer, "backward"));
+      for (const [name, g] of Object.entries(result.weights)) {
+        // each micro-batch's weight gradient is stored in the gradients format before it is summed
+        recorder.round("gradients", g);
+        gradients.set(weightKey(layer, name), g);
+      }
+      dy = result.input;
+    }
+    return dy;
+  }
+
+  const input = makeInput(setup, random);
+  if (spec.input.kind !== "tokens") {
+    recorder.store({ id: "input/activation", layer: "input", role: "activation", slot: "activations", shape: batchShape(batch, graph.input) }, input);
+  }
+  const output = forward(graph.layers, input);
+  const last = graph.layers[graph.layers.length - 1]!;
+  const loss = spec.training.loss;
+  const factor = setup.lossScale / spec.training.accumulationSteps;
+  const lastShape = batchShape(batch, last.output);
+  let value: number;
+  let gradient: Float64Array;
+  let targetMask: Uint8Array | undefined;
+  if (loss.kind === "cross-entropy") {
+    const classes = loss.classes;
+    const rows = output.length / classes;
+    const targets = new Int32Array(rows);
+    for (let r = 0; r < rows; r++) targets[r] = random.integer(classes);
+    const r = crossEntropy(output, targets, rows, classes, loss.reduction);
+    value = r.loss;
+    gradient = r.gradient;
+    targetMask = new Uint8Array(gradient.length);
+    for (let row = 0; row < rows; row++) targetMask[row * classes + targets[row]!] = 1;
+  } else {
+    const target = new Float64Array(output.length);
+    for (let i = 0; i < target.length; i++) target[i] = loss.targetScale * random.normal();
+    const r = meanSquaredError(output, target, loss.reduction);
+    value = r.loss;
+    gradient = r.gradient;
+  }
+  for (let i = 0; i < gradient.length; i++) gradient[i] = gradient[i]! * factor;
+  if (recorder.active) {
+    recorder.measure({ id: "loss/loss", layer: "loss", role: "loss", slot: "activations", shape: [1] }, Float64Array.of(value));
+    const meta = { layer: last.name, role: "activation-gradient" as const, slot: "gradients" as const, shape: lastShape };
+    if (targetMask !== undefined) {
+      // the analytic seed reports the wrong-class elements and the right-class elements as two tensors
+      const right = targetMask.map((v) => 1 - v);
+      recorder.measure({ ...meta, id: `${last.name}/activation-gradient` }, gradient, targetMask);
+      recorder.measure({ ...meta, id: `${last.name}/activation-gradient:target-class` }, gradient, right);
+    } else {
+      recorder.measure({ ...meta, id: `${last.name}/activation-gradient` }, gradient);
+    }
+  }
+  recorder.round("gradients", gradient);
+  backward(graph.layers, gradient, true);
+  return { loss: value, gradients };
+}
+
+/** One step: every micro-batch, then the combined weight gradients (measured and rounded). */
+function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; recorder: Recorder; gradients: Map<string, Float64Array> } {
+  const recorder = new Recorder(setup, measure);
+  const sums = new Map<string, Float64Array>();
+  let loss = 0;
+  for (let m = 0; m < setup.microBatches; m++) {
+    recorder.active = measure && m === 0;
+    const r = runMicroBatch(setup, model, recorder);
+    if (m === 0) loss = r.loss;
+    for (const [key, g] of r.gradients) {
+      const sum = sums.get(key);
+      if (sum === undefined) sums.set(key, Float64Array.from(g));
+      else for (let i = 0; i < g.length; i++) sum[i] = sum[i]! + g[i]!;
+    }
+  }
+  recorder.active = measure;
+  const training = setup.spec.training;
+  // micro-batches not run are taken as independent: their sum grows as √count (common practice for independent sums)
+  const rescale = Math.sqrt(setup.wantedMicroBatches / setup.microBatches);
+  const average = training.workerGradients === "average" ? 1 / training.workers : 1;
+  for (const layer of allLayers(setup.graph.layers)) {
+    for (const w of layer.weights) {
+      const key = weightKey(layer, w);
+      const sum = sums.get(key);
+      if (sum === undefined) continue;
+      const k = rescale * average;
+      if (k !== 1) for (let i = 0; i < sum.length; i++) sum[i] = sum[i]! * k;
+      recorder.store({ id: weightId(layer, w.name, "weight-gradient"), layer: layer.name, role: "weight-gradient", slot: "gradients", shape: w.shape }, sum);
+    }
+  }
+  return { loss, recorder, gradients: sums };
+}
+
+/** Learning rate at step t (1-based): linear warm-up to the peak, then linear decay to the end value over the horizon (common practice). */
+export function learningRate(spec: NetworkSpec, t: number): number {
+  const { learningRate: lr, warmupSteps } = spec.training.optimizer;
+  if (warmupSteps > 0 && t <= warmupSteps) return (lr.peak * t) / warmupSteps;
+  const total = Math.max(spec.training.horizon.steps - warmupSteps, 1);
+  const progress = Math.min(Math.max(t - warmupSteps, 0) / total, 1);
+  return lr.peak + (lr.end - lr.peak) * progress;
+}
+
+/** Apply one optimizer update from the (scaled) combined gradients; returns the step's record. */
+function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float64Array>, loss: number): StepRecord {
+  const { spec } = setup;
+  const opt = spec.training.optimizer;
+  model.step++;
+  const t = model.step;
+  const lr = learningRate(spec, t);
+  const record: StepRecord = { step: t, loss, learningRate: lr, skipped: false, swamped: {}, updateRatio: {} };
+  // remove the loss scale (Micikevicius et al. 2018 §3.2: unscale before clipping and weight decay)
+  const unscaled = new Map<string, Float64Array>();
+  let finite = true;
+  let norm2 = 0;
+  for (const [key, g] of gradients) {
+    const u = new Float64Array(g.length);
+    for (let i = 0; i < g.length; i++) {
+      const v = g[i]! / setup.lossScale;
+      if (!Number.isFinite(v)) finite = false;
+      u[i] = v;
+      norm2 += v * v;
+    }
+    unscaled.set(key, u);
+  }
+  if (!finite) {
+    // an overflowed gradient skips the update, as loss-scaling implementations do (Micikevicius et al. 2018 §3.2)
+    record.skipped = true;
+    return record;
+  }
+  const clip = opt.clipNorm !== undefined && Math.sqrt(norm2) > opt.clipNorm ? opt.clipNorm / Math.sqrt(norm2) : 1;
+  const states = setup.formats.optimizerStates;
+  for (const [key, g] of unscaled) {
+    const stored = model.weights.get(key)!;
+    const master = model.master.get(key);
+    const current = master ?? stored;
+    const update = new Float64Array(g.length);
+    const decoupled = opt.kind === "adamw";
+    for (let i = 0; i < g.length; i++) {
+      let gi = g[i]! * clip;
+      if (!decoupled && opt.weightDecay > 0) gi += opt.weightDecay * current[i]!;
+      g[i] = gi;
+    }
+    if (opt.kind === "sgd") {
+      for (let i = 0; i < g.length; i++) update[i] = lr * g[i]!;
+    } else if (opt.kind === "momentum") {
+      let buf = model.first.get(key);
+      if (buf === undefined) model.first.set(key, (buf = new Float64Array(g.length)));
+      for (let i = 0; i < g.length; i++) buf[i] = opt.momentum * buf[i]! + g[i]!;
+      if (setup.round) roundArrayInPlace(states, buf, setup.roundOptions);
+      for (let i = 0; i < g.length; i++) update[i] = lr * buf[i]!;
+    } else {
+      // Adam (Kingma & Ba 2015, Algorithm 1); AdamW's decoupled decay (Loshchilov & Hutter 2019)
+      const [b1, b2] = opt.betas;
+      let m = model.first.get(key);
+      let v = model.second.get(key);
+      if (m === undefined) model.first.set(key, (m = new Float64Array(g.length)));
+      if (v === undefined) model.second.set(key, (v = new Float64Array(g.length)));
+      for (let i = 0; i < g.length; i++) {
+        m[i] = b1 * m[i]! + (1 - b1) * g[i]!;
+        v[i] = b2 * v[i]! + (1 - b2) * g[i]! * g[i]!;
+      }
+      if (setup.round) {
+        roundArrayInPlace(states, m, setup.roundOptions);
+        roundArrayInPlace(states, v, setup.roundOptions);
+      }
+      const c1 = 1 - b1 ** t;
+      const c2 = 1 - b2 ** t;
+      for (let i = 0; i < g.length; i++) {
+        update[i] = (lr * (m[i]! / c1)) / (Math.sqrt(v[i]! / c2) + opt.epsilon);
+        if (decoupled) update[i] = update[i]! + lr * opt.weightDecay * current[i]!;
+      }
+    }
+    let swamped = 0;
+    let changed = 0;
+    let u2 = 0;
+    let w2 = 0;
+    for (let i = 0; i < g.length; i++) {
+      u2 += update[i]! * update[i]!;
+      w2 += stored[i]! * stored[i]!;
+    }
+    const target = master ?? stored;
+    const before = Float64Array.from(target);
+    for (let i = 0; i < g.length; i++) target[i] = target[i]! - update[i]!;
+    if (setup.round) roundArrayInPlace(master !== undefined ? setup.master! : setup.formats.weights, target, setup.roundOptions);
+    if (master !== undefined) {
+      stored.set(master);
+      if (setup.round) roundArrayInPlace(setup.formats.weights, stored, setup.roundOptions);
+    }
+    for (let i = 0; i < g.length; i++) {
+      if (update[i] === 0) continue;
+      changed++;
+      if (target[i] === before[i]) swamped++;
+    }
+    record.swamped[key] = changed > 0 ? swamped / changed : 0;
+    record.updateRatio[key] = w2 > 0 ? Math.sqrt(u2 / w2) : 0;
+  }
+  return record;
+}
+
+/** Resolve the plan a simulation stores tensors in. */
+export function resolvePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
+  if (name === undefined || name === spec.precision.name) return spec.precision;
+  const plan = spec.plans.find((p) => p.name === name);
+  if (plan === undefined) {
+    const known = [spec.precision.name, ...spec.plans.map((p) => p.name)];
+    throw new RangeError(`the spec has no plan named "${name}" (plans: ${known.join(", ")})`);
+  }
+  return plan;
+}
+
+/** A rounding function for the accumulate format, or undefined for binary64 (no rounding needed). */
+function accumulator(format: Format, options: RoundOptions): RoundFunction | undefined {
+  if (format.name === "binary64") return undefined;
+  // Math.fround is round-to-nearest-even into binary32 (ECMAScript §21.3.2.17), the same as the format model's rounding
+  if (format.name === "binary32" || format.name === "tf32") return Math.fround;
+  const f = format;
+  return (x: number) => roundWith(f, x, options);
+}
+
+function roundWith(format: Format, x: number, options: RoundOptions): number {
+  const one = Float64Array.of(x);
+  roundArrayInPlace(format, one, options);
+  return one[0]!;
+}
+
+/**
+ * Simulate one training step (and optional optimizer steps) of a spec, measuring every tensor.
+ * Throws RangeError for bad options and SimulationTooLarge when the run would not fit the memory limit.
+ */
+export function runSimulation(original: NetworkSpec, options: SimulateOptions = {}): SimulationResult {
+  const seed = options.seed ?? 1;
+  const draws = options.draws ?? 1;
+  const steps = options.steps ?? 0;
+  if (!Number.isSafeInteger(seed)) throw new RangeError(`seed must be a whole number, got ${String(seed)}`);
+  if (!Number.isInteger(draws) || draws < 1 || draws > 1000) throw new RangeError(`draws must be a whole number from 1 to 1000, got ${String(draws)}`);
+  if (!Number.isInteger(steps) || steps < 0 || steps > 10000) throw new RangeError(`steps must be a whole number from 0 to 10000, got ${String(steps)}`);
+  const { spec, report } = shrinkSpec(original, options.shrink);
+  const built = buildGraph(spec);
+  if (!built.ok) {
+    throw new RangeError(`the spec does not build a network${report.shrunk ? " after shrinking" : ""}: ${built.issues.map((i) => i.message).join("; ")}`);
+  }
+  const graph = built.graph;
+  const plan = resolvePlan(spec, options.plan);
+  const lossScale = options.lossScale ?? plan.lossScale ?? 1;
+  if (!(lossScale > 0) || !Number.isFinite(lossScale)) throw new RangeError(`loss scale must be a finite number > 0, got ${String(lossScale)}`);
+  const limit = options.memoryLimit ?? DEFAULT_MEMORY_LIMIT;
+  const estimate = checkMemory(original, graph, steps, limit, report.shrunk);
+  const training = spec.training;
+  const wanted = training.accumulationSteps * training.workers;
+  const cap = options.microBatches ?? DEFAULT_MICRO_BATCHES;
+  if (!Number.isInteger(cap) || cap < 1) throw new RangeError(`micro-batches must be a whole number ≥ 1, got ${String(cap)}`);
+  const roundOptions: RoundOptions = { overflow: plan.overflow, flushSubnormals: plan.flushSubnormals };
+  const accumulateFormat = getFormat(plan.accumulate);
+  const setup: Setup = {
+    spec,
+    graph,
+    plan,
+    formats: {
+      activations: getFormat(plan.activations),
+      weights: getFormat(plan.weights),
+      gradients: getFormat(plan.gradients),
+      optimizerStates: getFormat(plan.optimizerStates),
+    },
+    master: plan.masterWeights === "none" ? null : getFormat(plan.masterWeights),
+    roundOptions,
+    round: options.round ?? true,
+    accumulate: options.round === false ? undefined : accumulator(accumulateFormat, roundOptions),
+    lossScale,
+    microBatches: Math.min(wanted, cap),
+    wantedMicroBatches: wanted,
+  };
+
+  const perTensor = new Map<string, { meta: TensorMeta; draws: TensorStats[]; after: TensorStats[] }>();
+  const history: StepRecord[][] = [];
+  const initialLoss: number[] = [];
+  const seeds: number[] = [];
+  for (let d = 0; d < draws; d++) {
+    const drawSeed = seed + d;
+    seeds.push(drawSeed);
+    const initRecorder = new Recorder(setup, true);
+    const model = createModel(setup, drawSeed, initRecorder);
+    let step = runStep(setup, model, true);
+    initialLoss.push(step.loss);
+    for (const source of [initRecorder.stats, step.recorder.stats]) {
+      for (const [id, entry] of source) {
+        const slot = perTensor.get(id) ?? { meta: entry.meta, draws: [], after: [] };
+        slot.draws.push(entry.stats);
+        perTensor.set(id, slot);
+      }
+    }
+    const records: StepRecord[] = [];
+    for (let s = 1; s <= steps; s++) {
+      records.push(optimizerStep(setup, model, step.gradients, step.loss));
+      const last = s === steps;
+      step = runStep(setup, model, last);
+      if (last) {
+        const weightRecorder = new Recorder(setup, true);
+        for (const layer of allLayers(graph.layers)) {
+          for (const w of layer.weights) {
+            weightRecorder.measure({ id: weightId(layer, w.name, "weight"), layer: layer.name, role: "weight", slot: "weights", shape: w.shape }, model.weights.get(weightKey(layer, w))!);
+          }
+        }
+        for (const source of [weightRecorder.stats, step.recorder.stats]) {
+          for (const [id, entry] of source) perTensor.get(id)?.after.push(entry.stats);
+        }
+      }
+    }
+    history.push(records);
+  }
+
+  const tensors: MeasuredTensor[] = [];
+  for (const [id, entry] of perTensor) {
+    const t: MeasuredTensor = { id, layer: entry.meta.layer, role: entry.meta.role, slot: entry.meta.slot, shape: entry.meta.shape, median: medianStats(entry.draws), draws: entry.draws };
+    if (entry.after.length > 0) t.after = medianStats(entry.after);
+    tensors.push(t);
+  }
+  return {
+    specName: original.name,
+    planName: plan.name,
+    formats: {
+      activations: plan.activations,
+      weights: plan.weights,
+      gradients: plan.gradients,
+      optimizerStates: plan.optimizerStates,
+      accumulate: plan.accumulate,
+      masterWeights: plan.masterWeights,
+    },
+    lossScale,
+    seeds,
+    steps,
+    microBatches: { run: setup.microBatches, wanted },
+    rounded: setup.round,
+    shrink: report,
+    simulatedSpec: spec,
+    memory: { estimateBytes: estimate, limitBytes: limit },
+    tensors,
+    history,
+    initialLoss,
+    assumptions: assumptions(setup, report.shrunk),
+  };
+}
+
+function assumptions(setup: Setup, shrunk: boolean): string[] {
+  const list = [
+    "Inputs are random: Gaussian features or pixels at the spec's input scale, token ids uniform over the vocabulary, class targets uniform, regression targets Gaussian at the target scale.",
+    "Each tensor is measured in binary64 just before it is stored, then rounded to its planned format (round to nearest, ties to even) and used in that form.",
+    "Orthogonal initialisations are drawn as Gaussians of the same variance.",
+    "Dropout is inverted (kept values scaled by 1/(1 − rate)); batch norm runs in training mode.",
+  ];
+  if (setup.accumulate !== undefined) {
+    list.push(
+      setup.accumulate === Math.fround
+        ? `Products accumulate in binary32 (${setup.plan.accumulate}): every product and partial sum is rounded, over blocks of 256 terms.`
+        : `Products accumulate in ${setup.plan.accumulate}: every product and partial sum is rounded, summed in order.`,
+    );
+  }
+  if (setup.wantedMicroBatches > 1) {
+    const { accumulationSteps: A, workers: W } = setup.spec.training;
+    list.push(
+      `Each step runs ${setup.microBatches} of the ${setup.wantedMicroBatches} micro-batches (${A} accumulation step(s) × ${W} worker(s)); activations and their gradients are measured on the first.` +
+        (setup.microBatches < setup.wantedMicroBatches ? ` The weight-gradient sums are multiplied by √(${setup.wantedMicroBatches}/${setup.microBatches}), taking the missing micro-batches as independent.` : ""),
+    );
+  }
+  if (shrunk) list.push("The network was shrunk for speed; see the list of changes. Predictions compared with it are made for the shrunk network.");
+  list.push("A simulation samples a few random draws; it is a second opinion, not a guarantee. Confirm with a short real training run.");
+  return list;
+}

@@ -1,0 +1,107 @@
+/**
+ * Statistics of one tensor as the simulator sees it: magnitudes of the binary64 values (before storage
+ * rounding) and what storing them in a format does, counted with the format model (src/formats countClasses).
+ */
+import { countClasses, type Format, type RoundOptions } from "../formats/index.js";
+import type { TensorStats } from "./types.js";
+
+/** Nonzero magnitudes kept for quantiles; larger tensors are sampled at a fixed stride (deterministic). */
+const QUANTILE_SAMPLE = 4096;
+
+/** The elements of `data` not marked in `excluded`, as a new array (or `data` itself when nothing is excluded). */
+export function selectElements(data: Float64Array, excluded?: Uint8Array): Float64Array {
+  if (excluded === undefined) return data;
+  let n = 0;
+  for (let i = 0; i < data.length; i++) if (excluded[i] !== 1) n++;
+  const out = new Float64Array(n);
+  let j = 0;
+  for (let i = 0; i < data.length; i++) if (excluded[i] !== 1) out[j++] = data[i]!;
+  return out;
+}
+
+/** The element at fraction p of a sorted array (nearest rank). */
+function quantile(sorted: Float64Array, p: number): number {
+  if (sorted.length === 0) return 0;
+  const i = Math.min(sorted.length - 1, Math.max(0, Math.ceil(p * sorted.length) - 1));
+  return sorted[i]!;
+}
+
+/**
+ * Measure a tensor: exact zeros, rms of the nonzero elements, largest magnitude, quantiles of the nonzero
+ * magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format`.
+ */
+export function measureTensor(data: Float64Array, format: Format, options: RoundOptions): TensorStats {
+  const n = data.length;
+  let zeros = 0;
+  let sumSquares = 0;
+  let nonzero = 0;
+  let max = 0;
+  for (let i = 0; i < n; i++) {
+    const v = data[i]!;
+    if (v === 0) {
+      zeros++;
+      continue;
+    }
+    const a = Math.abs(v);
+    if (!Number.isFinite(a)) continue;
+    nonzero++;
+    sumSquares += a * a;
+    if (a > max) max = a;
+  }
+  const stride = Math.max(1, Math.ceil(nonzero / QUANTILE_SAMPLE));
+  const sample = new Float64Array(Math.ceil(nonzero / stride));
+  let seen = 0;
+  let k = 0;
+  for (let i = 0; i < n && k < sample.length; i++) {
+    const a = Math.abs(data[i]!);
+    if (a === 0 || !Number.isFinite(a)) continue;
+    if (seen++ % stride === 0) sample[k++] = a;
+  }
+  const sorted = sample.subarray(0, k).sort();
+  const c = countClasses(format, data, options);
+  const total = n > 0 ? n : 1;
+  return {
+    elements: n,
+    zeroFraction: zeros / total,
+    rms: nonzero > 0 ? Math.sqrt(sumSquares / nonzero) : 0,
+    max,
+    quantiles: [quantile(sorted, 0.01), quantile(sorted, 0.1), quantile(sorted, 0.5), quantile(sorted, 0.9), quantile(sorted, 0.99)],
+    counts: {
+      format: format.name,
+      flushed: c.flushed / total,
+      subnormal: c.subnormal / total,
+      overflowed: c.overflowed / total,
+      saturated: c.saturated / total,
+      nonFinite: (c.infinities + c.nans) / total,
+    },
+  };
+}
+
+function median(values: number[]): number {
+  const s = [...values].sort((a, b) => a - b);
+  const m = s.length >> 1;
+  return s.length % 2 === 1 ? s[m]! : (s[m - 1]! + s[m]!) / 2;
+}
+
+/** Field-wise median of one tensor's statistics over draws. */
+export function medianStats(draws: readonly TensorStats[]): TensorStats {
+  const first = draws[0];
+  if (first === undefined) throw new RangeError("medianStats needs at least one draw");
+  if (draws.length === 1) return first;
+  const pick = (f: (s: TensorStats) => number): number => median(draws.map(f));
+  return {
+    elements: first.elements,
+    zeroFraction: pick((s) => s.zeroFraction),
+    rms: pick((s) => s.rms),
+    max: pick((s) => s.max),
+    quantiles: [0, 1, 2, 3, 4].map((i) => pick((s) => s.quantiles[i]!)) as TensorStats["quantiles"],
+    counts: {
+      format: first.counts.format,
+      flushed: pick((s) => s.counts.flushed),
+      subnormal: pick((s) => s.counts.subnormal),
+      overflowed: pick((s) => s.counts.overflowed),
+      saturated: pick((s) => s.counts.saturated),
+      nonFinite: pick((s) => s.counts.nonFinite),
+    },
+  };
+}

@@ -1,0 +1,149 @@
+/**
+ * Options and results of the float64 simulator: plain JSON-able data, keyed by the same tensor ids as the
+ * magnitude engine's predictions (src/magnitude/types.ts, TensorPrediction.id).
+ */
+import type { FormatName } from "../formats/names.js";
+import type { PlanSlot, TensorRole } from "../magnitude/types.js";
+import type { NetworkSpec } from "../spec/types.js";
+
+/** Factors by which sizes are divided before simulating (1 = unchanged). */
+export interface ShrinkFactors {
+  /** dense widths, conv channels, embedding width, attention heads, gated hidden width, input features */
+  width: number;
+  /** samples per step */
+  batch: number;
+  /** sequence positions of the input */
+  positions: number;
+  /** classes of a cross-entropy loss (the width of the layer that produces the class scores) */
+  classes: number;
+  /** height and width of an image input */
+  image: number;
+}
+
+/** Options of simulate(). */
+export interface SimulateOptions {
+  /** seed of the first draw; draw i uses seed + i (default 1) */
+  seed?: number;
+  /** independent draws (initialisation and data), whose median is reported (default 1) */
+  draws?: number;
+  /** optimizer steps to run after the first measurement (default 0) */
+  steps?: number;
+  /** size reductions; any factor left out is 1 */
+  shrink?: Partial<ShrinkFactors>;
+  /** the plan to store tensors in: a name from the spec's plans, or the spec's `precision` when absent */
+  plan?: string;
+  /** static loss scale (default: the plan's, else 1) */
+  lossScale?: number;
+  /** round stored tensors to the plan's formats (default true); false gives a pure binary64 reference run */
+  round?: boolean;
+  /** largest memory the simulation may need, in bytes (default 4 GiB); larger runs are refused with a suggestion */
+  memoryLimit?: number;
+  /** micro-batches run per step at most (accumulation steps × workers); the rest is rescaled (default 8) */
+  microBatches?: number;
+}
+
+/** What storing a tensor in its planned format did, as fractions of its elements. */
+export interface FormatCounts {
+  format: FormatName;
+  /** nonzero values that became zero */
+  flushed: number;
+  /** values whose stored result is subnormal */
+  subnormal: number;
+  /** finite values that became infinite or NaN */
+  overflowed: number;
+  /** finite values clamped to the largest finite value */
+  saturated: number;
+  /** values that were already infinite or NaN before storing */
+  nonFinite: number;
+}
+
+/** Measured statistics of one tensor in one draw (before it was rounded for storage). */
+export interface TensorStats {
+  /** elements counted (masked attention logits are not part of the tensor) */
+  elements: number;
+  /** share of elements exactly zero before storage */
+  zeroFraction: number;
+  /** root mean square of the nonzero elements */
+  rms: number;
+  /** largest finite magnitude */
+  max: number;
+  /** quantiles of the nonzero magnitudes: 1%, 10%, 50%, 90%, 99% */
+  quantiles: [number, number, number, number, number];
+  counts: FormatCounts;
+}
+
+/** One measured tensor: its place in the step and its statistics, per draw and as the median over draws. */
+export interface MeasuredTensor {
+  id: string;
+  layer: string;
+  role: TensorRole;
+  slot: PlanSlot;
+  shape: number[];
+  /** field-wise median over draws */
+  median: TensorStats;
+  /** one entry per draw, in seed order */
+  draws: TensorStats[];
+  /** after the optimizer steps (median over draws), when steps were run */
+  after?: TensorStats;
+}
+
+/** One optimizer step of one draw. */
+export interface StepRecord {
+  step: number;
+  loss: number;
+  learningRate: number;
+  /** true when a gradient was infinite or NaN after removing the loss scale, so the update was skipped */
+  skipped: boolean;
+  /** per weight: share of its elements whose nonzero update left the stored weight unchanged (swamping) */
+  swamped: Record<string, number>;
+  /** per weight: rms(update) / rms(weight) */
+  updateRatio: Record<string, number>;
+}
+
+/** What was shrunk, and how the comparison treats it. */
+export interface ShrinkReport {
+  factors: ShrinkFactors;
+  /** plain sentences, one per change */
+  changes: string[];
+  /** true when any factor is above 1 */
+  shrunk: boolean;
+}
+
+/** The simulator's result for one spec. */
+export interface SimulationResult {
+  specName: string;
+  planName: string;
+  formats: Record<PlanSlot, FormatName> & { accumulate: FormatName; masterWeights: FormatName | "none" };
+  lossScale: number;
+  seeds: number[];
+  steps: number;
+  /** micro-batches run per step, and how many the spec's accumulation steps × workers call for */
+  microBatches: { run: number; wanted: number };
+  rounded: boolean;
+  shrink: ShrinkReport;
+  /** the spec that was run (shrunk when asked) */
+  simulatedSpec: NetworkSpec;
+  memory: { estimateBytes: number; limitBytes: number };
+  tensors: MeasuredTensor[];
+  /** per draw, per step (empty when no steps were run) */
+  history: StepRecord[][];
+  /** the loss of the first step, per draw */
+  initialLoss: number[];
+  /** what the engine assumed, in plain sentences */
+  assumptions: string[];
+}
+
+/** A spec too large to simulate within the memory limit: the message names the memory and a shrink that fits. */
+export class SimulationTooLarge extends RangeError {
+  readonly neededBytes: number;
+  readonly limitBytes: number;
+  /** a uniform shrink factor that would fit, or undefined when none up to 1024 does */
+  readonly suggestedShrink: number | undefined;
+  constructor(message: string, neededBytes: number, limitBytes: number, suggestedShrink: number | undefined) {
+    super(message);
+    this.name = "SimulationTooLarge";
+    this.neededBytes = neededBytes;
+    this.limitBytes = limitBytes;
+    this.suggestedShrink = suggestedShrink;
+  }
+}
