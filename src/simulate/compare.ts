@@ -31,7 +31,7 @@ export interface ComparisonRow {
   /** log2(measured rms / predicted rms): positive when the measurement is larger */
   differenceBinades: number;
   predictedZeroFraction: number;
-  /** predicted share of elements flushed to zero in the format */
+  /** predicted share of elements flushed to zero in the format (NaN for 8-bit formats stored with scale factors) */
   predictedFlushed: number;
   /** predicted share of elements above the overflow threshold */
   predictedOverflow: number;
@@ -111,7 +111,9 @@ export function compareWithPrediction(
   const tolerance = options.tolerance ?? STANDING_TOLERANCE;
   const predicted = new Map<string, TensorPrediction>(prediction.tensors.map((t) => [t.id, t]));
   const full = new Map<string, TensorPrediction>((options.fullSize?.tensors ?? []).map((t) => [t.id, t]));
-  const flushSubnormals = result.simulatedSpec.plans.concat(result.simulatedSpec.precision).find((p) => p.name === result.planName)?.flushSubnormals ?? false;
+  const plan = result.simulatedSpec.plans.concat(result.simulatedSpec.precision).find((p) => p.name === result.planName);
+  const flushSubnormals = plan?.flushSubnormals ?? false;
+  const scaled8 = plan !== undefined && plan.scaling !== "none";
   const rows: ComparisonRow[] = [];
   const measuredOnly: string[] = [];
   for (const measured of result.tensors) {
@@ -123,7 +125,8 @@ export function compareWithPrediction(
     const format = getFormat(measured.median.counts.format);
     const m = measured.median;
     const differenceBinades = m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
-    const predictedFlushed = predictedFlushedFraction(p.start, format, flushSubnormals);
+    // 8-bit formats with scale factors: the prediction carries no scale, so flushed fractions are not compared
+    const predictedFlushed = scaled8 && format.bits === 8 ? NaN : predictedFlushedFraction(p.start, format, flushSubnormals);
     const row: ComparisonRow = {
       id: measured.id,
       layer: measured.layer,
@@ -135,7 +138,9 @@ export function compareWithPrediction(
       predictedZeroFraction: p.start.zeroFraction,
       predictedFlushed,
       predictedOverflow: predictedOverflowFraction(p.start, format),
-      disagrees: !(Math.abs(differenceBinades) <= tolerance.binades) || !(Math.abs(m.counts.flushed - predictedFlushed) <= tolerance.flushed),
+      disagrees:
+        !(Math.abs(differenceBinades) <= tolerance.binades) ||
+        (!Number.isNaN(predictedFlushed) && !(Math.abs(m.counts.flushed - predictedFlushed) <= tolerance.flushed)),
     };
     const f = full.get(measured.id);
     if (f !== undefined && result.shrink.shrunk) {

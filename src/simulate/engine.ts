@@ -22,6 +22,7 @@ import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import type { RoundFunction } from "./matmul.js";
 import { createRandomSource, type RandomSource } from "./random.js";
+import { applyScales, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
 import { measureTensor, medianStats, selectElements } from "./stats.js";
 import type { MeasuredTensor, SimulateOptions, SimulationResult, StepRecord, TensorStats } from "./types.js";
@@ -83,12 +84,27 @@ class Recorder {
 
   measure(meta: TensorMeta, data: Float64Array, excluded?: Uint8Array): void {
     const format = this.setup.formats[meta.slot];
-    this.stats.set(meta.id, { meta, stats: measureTensor(selectElements(data, excluded), format, this.setup.roundOptions) });
+    const values = selectElements(data, excluded);
+    const scales = storageScales(values, format, this.setup.plan.scaling);
+    this.stats.set(meta.id, { meta, stats: measureTensor(values, format, roundOptionsFor(this.setup, format), scales) });
   }
 
   round(slot: PlanSlot, data: Float64Array): void {
-    if (this.setup.round) roundArrayInPlace(this.setup.formats[slot], data, this.setup.roundOptions);
+    if (this.setup.round) storeIn(this.setup, this.setup.formats[slot], data);
   }
+}
+
+/** The plan's overflow mode governs 8-bit conversions; IEEE 16- and 32-bit conversions overflow to infinity (IEEE 754-2019 §7.4). */
+function roundOptionsFor(setup: Setup, format: Format): RoundOptions {
+  return format.bits === 8 ? setup.roundOptions : { ...setup.roundOptions, overflow: "infinity-or-nan" };
+}
+
+/** Round in place to a format, through the plan's 8-bit scale factors when it has them. */
+function storeIn(setup: Setup, format: Format, data: Float64Array): void {
+  const scales = storageScales(data, format, setup.plan.scaling);
+  applyScales(data, scales);
+  roundArrayInPlace(format, data, roundOptionsFor(setup, format));
+  applyScales(data, scales, true);
 }
 
 function weightKey(layer: GraphLayer, w: GraphWeight | string): string {
@@ -168,7 +184,7 @@ function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
       const key = weightKey(layer, w);
       if (setup.master !== null) {
         const master = Float64Array.from(data);
-        if (setup.round) roundArrayInPlace(setup.master, master, setup.roundOptions);
+        if (setup.round) storeIn(setup, setup.master, master);
         model.master.set(key, master);
       }
       recorder.store({ id: weightId(layer, w.name, "weight"), layer: layer.name, role: "weight", slot: "weights", shape: w.shape }, data);
@@ -397,7 +413,7 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
       let buf = model.first.get(key);
       if (buf === undefined) model.first.set(key, (buf = new Float64Array(g.length)));
       for (let i = 0; i < g.length; i++) buf[i] = opt.momentum * buf[i]! + g[i]!;
-      if (setup.round) roundArrayInPlace(states, buf, setup.roundOptions);
+      if (setup.round) storeIn(setup, states, buf);
       for (let i = 0; i < g.length; i++) update[i] = lr * buf[i]!;
     } else {
       // Adam (Kingma & Ba 2015, Algorithm 1); AdamW's decoupled decay (Loshchilov & Hutter 2019)
@@ -411,8 +427,8 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
         v[i] = b2 * v[i]! + (1 - b2) * g[i]! * g[i]!;
       }
       if (setup.round) {
-        roundArrayInPlace(states, m, setup.roundOptions);
-        roundArrayInPlace(states, v, setup.roundOptions);
+        storeIn(setup, states, m);
+        storeIn(setup, states, v);
       }
       const c1 = 1 - b1 ** t;
       const c2 = 1 - b2 ** t;
@@ -432,10 +448,10 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
     const target = master ?? stored;
     const before = Float64Array.from(target);
     for (let i = 0; i < g.length; i++) target[i] = target[i]! - update[i]!;
-    if (setup.round) roundArrayInPlace(master !== undefined ? setup.master! : setup.formats.weights, target, setup.roundOptions);
+    if (setup.round) storeIn(setup, master !== undefined ? setup.master! : setup.formats.weights, target);
     if (master !== undefined) {
       stored.set(master);
-      if (setup.round) roundArrayInPlace(setup.formats.weights, stored, setup.roundOptions);
+      if (setup.round) storeIn(setup, setup.formats.weights, stored);
     }
     for (let i = 0; i < g.length; i++) {
       if (update[i] === 0) continue;
@@ -470,7 +486,7 @@ function accumulator(format: Format, options: RoundOptions): RoundFunction | und
 
 function roundWith(format: Format, x: number, options: RoundOptions): number {
   const one = Float64Array.of(x);
-  roundArrayInPlace(format, one, options);
+  roundArrayInPlace(format, one, format.bits === 8 ? options : { ...options, overflow: "infinity-or-nan" });
   return one[0]!;
 }
 

@@ -3,6 +3,7 @@
  * rounding) and what storing them in a format does, counted with the format model (src/formats countClasses).
  */
 import { countClasses, type Format, type RoundOptions } from "../formats/index.js";
+import { applyScales } from "./scaling.js";
 import type { TensorStats } from "./types.js";
 
 /** Nonzero magnitudes kept for quantiles; larger tensors are sampled at a fixed stride (deterministic). */
@@ -28,9 +29,10 @@ function quantile(sorted: Float64Array, p: number): number {
 
 /**
  * Measure a tensor: exact zeros, rms of the nonzero elements, largest magnitude, quantiles of the nonzero
- * magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format`.
+ * magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format` (after
+ * multiplying by the storage scales of 8-bit scaling, when given).
  */
-export function measureTensor(data: Float64Array, format: Format, options: RoundOptions): TensorStats {
+export function measureTensor(data: Float64Array, format: Format, options: RoundOptions, scales: Float64Array | number = 1): TensorStats {
   const n = data.length;
   let zeros = 0;
   let sumSquares = 0;
@@ -58,7 +60,12 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
     if (seen++ % stride === 0) sample[k++] = a;
   }
   const sorted = sample.subarray(0, k).sort();
-  const c = countClasses(format, data, options);
+  let stored = data;
+  if (scales !== 1) {
+    stored = Float64Array.from(data);
+    applyScales(stored, scales);
+  }
+  const c = countClasses(format, stored, options);
   const total = n > 0 ? n : 1;
   return {
     elements: n,

@@ -1,0 +1,242 @@
+import { describe, expect, it } from "vitest";
+import fc from "fast-check";
+import { FORMATS, roundTo, type FormatName } from "../../src/formats/index.js";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import { parseSpec, type NetworkSpec } from "../../src/spec/index.js";
+import { runSimulation, learningRate } from "../../src/simulate/engine.js";
+import { shrinkSpec } from "../../src/simulate/shrink.js";
+import { measureTensor } from "../../src/simulate/stats.js";
+import { SimulationTooLarge } from "../../src/simulate/types.js";
+
+function spec(text: string): NetworkSpec {
+  const parsed = parseSpec(text, "engine.yaml");
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => `${i.line}:${i.column} ${i.message}`).join("; "));
+  return parsed.spec;
+}
+
+const MLP = `name: small-mlp
+input: { features: 32, scale: 1.0 }
+training:
+  batch: 16
+  loss: { kind: cross-entropy, classes: 10 }
+  optimizer: { kind: sgd, learning-rate: { peak: 0.1, end: 0.1 }, warmup-steps: 2 }
+precision:
+  name: half
+  activations: binary16
+  weights: binary16
+  gradients: binary16
+  optimizer-states: binary32
+  master-weights: binary32
+  accumulate: binary32
+layers:
+  - { type: dense, width: 64, init: he-normal }
+  - relu
+  - { type: dense, width: 64, init: he-normal }
+  - relu
+  - { type: dense, name: classes, width: 10, init: glorot-normal }
+`;
+
+describe("simulation engine", () => {
+  it("is deterministic for a seed and changes with it", () => {
+    const s = spec(MLP);
+    const a = runSimulation(s, { seed: 7, draws: 2 });
+    const b = runSimulation(s, { seed: 7, draws: 2 });
+    const c = runSimulation(s, { seed: 8, draws: 2 });
+    expect(JSON.stringify(a.tensors)).toBe(JSON.stringify(b.tensors));
+    expect(JSON.stringify(a.tensors)).not.toBe(JSON.stringify(c.tensors));
+    expect(a.seeds).toEqual([7, 8]);
+  });
+
+  it("measures every tensor the magnitude engine predicts, under the same ids", () => {
+    const s = spec(MLP);
+    const result = runSimulation(s);
+    const prediction = predict((buildGraph(s) as { ok: true; graph: never }).graph, s);
+    const measured = new Set(result.tensors.map((t) => t.id));
+    for (const t of prediction.tensors) expect(measured.has(t.id), t.id).toBe(true);
+  });
+
+  it("ReLU outputs are half exact zeros and He-initialised pre-activations keep the input's second moment (He et al. 2015)", () => {
+    const result = runSimulation(spec(MLP), { draws: 3 });
+    const relu = result.tensors.find((t) => t.id === "relu-1/activation")!;
+    // binomial: 3 draws × 16 × 64 elements, 5 standard deviations of a 0.5 share is about 0.05
+    expect(Math.abs(relu.median.zeroFraction - 0.5)).toBeLessThan(0.05);
+    const pre = result.tensors.find((t) => t.id === "dense-0/pre-activation")!;
+    // He: q_out = 2/fan_in · fan_in · q_in / 2 ... for the first layer, q = fan_in·(2/fan_in)·1 = 2, rms √2
+    expect(Math.abs(Math.log2(pre.median.rms / Math.SQRT2))).toBeLessThan(0.25);
+  });
+
+  it("rounds what it stores: an input below binary16's flush bound becomes zero, and so does everything after it", () => {
+    // binary16 flushes |x| ≤ 2^-25 ≈ 2.98e-8 (IEEE 754-2019 binary16; SCIENCE.md check value 4); 1e-9 is far below
+    const tiny = spec(MLP.replace("scale: 1.0", "scale: 1.0e-9"));
+    const rounded = runSimulation(tiny);
+    const input = rounded.tensors.find((t) => t.id === "input/activation")!;
+    expect(input.median.counts.format).toBe("binary16");
+    expect(input.median.counts.flushed).toBe(1);
+    expect(rounded.tensors.find((t) => t.id === "dense-0/pre-activation")!.median.zeroFraction).toBe(1);
+    const exact = runSimulation(tiny, { round: false });
+    // the counts still say what storing would do, but the values flow on unrounded
+    expect(exact.tensors.find((t) => t.id === "input/activation")!.median.counts.flushed).toBe(1);
+    expect(exact.tensors.find((t) => t.id === "dense-0/pre-activation")!.median.zeroFraction).toBe(0);
+  });
+
+  it("multiplies every gradient by the loss scale and leaves the forward pass alone", () => {
+    const s = spec(MLP);
+    const one = runSimulation(s, { round: false, lossScale: 1 });
+    const scaled = runSimulation(s, { round: false, lossScale: 1024 });
+    for (const t of one.tensors) {
+      if (t.median.rms === 0) continue;
+      const u = scaled.tensors.find((x) => x.id === t.id)!;
+      const gradient = t.role === "activation-gradient" || t.role === "weight-gradient";
+      expect(u.median.rms / t.median.rms, t.id).toBeCloseTo(gradient ? 1024 : 1, 9);
+    }
+  });
+
+  it("counts overflow in binary16 when a large loss scale pushes gradients past 65504", () => {
+    const s = spec(MLP);
+    const r = runSimulation(s, { lossScale: 2 ** 30 });
+    const g = r.tensors.find((t) => t.id === "classes/activation-gradient:target-class")!;
+    // the right-class gradient is (p − 1)/16 ≈ −0.06 per row: times 2^30 it is far above 65520 (binary16's overflow threshold)
+    expect(g.median.counts.overflowed).toBe(1);
+  });
+
+  it("runs optimizer steps: warm-up learning rates, a falling loss, updates recorded", () => {
+    const s = spec(MLP);
+    expect(learningRate(s, 1)).toBeCloseTo(0.05, 15);
+    expect(learningRate(s, 2)).toBeCloseTo(0.1, 15);
+    const r = runSimulation(s, { steps: 3 });
+    const history = r.history[0]!;
+    expect(history.map((h) => h.step)).toEqual([1, 2, 3]);
+    expect(history.every((h) => !h.skipped)).toBe(true);
+    expect(Object.keys(history[0]!.updateRatio)).toContain("dense-0/weight");
+    expect(r.tensors.find((t) => t.id === "dense-0/weight")!.after).toBeDefined();
+  });
+
+  it("sees update swamping: without a master copy, bfloat16 weights ignore updates below 2^-9 of their size (SCIENCE.md §1.1)", () => {
+    const s = spec(
+      MLP.replace("master-weights: binary32", "master-weights: none")
+        .replace("weights: binary16", "weights: bfloat16")
+        .replace("peak: 0.1, end: 0.1", "peak: 1.0e-6, end: 1.0e-6")
+        .replace("warmup-steps: 2", "warmup-steps: 0"),
+    );
+    const r = runSimulation(s, { steps: 1 });
+    const swamped = r.history[0]![0]!.swamped;
+    // lr·g is about 1e-6 × 1e-2 against weights near 0.1-0.2: far below half an ulp, so nearly every update is lost
+    expect(swamped["dense-2/weight"]!).toBeGreaterThan(0.95);
+    const kept = runSimulation(spec(MLP), { steps: 1 }).history[0]![0]!.swamped;
+    expect(kept["dense-2/weight"]!).toBeLessThan(swamped["dense-2/weight"]!);
+  });
+
+  it("runs the micro-batches of accumulation steps and workers, and says so", () => {
+    const s = spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  accumulation-steps: 2"));
+    const r = runSimulation(s, { microBatches: 2 });
+    expect(r.microBatches).toEqual({ run: 2, wanted: 4 });
+    expect(r.assumptions.join(" ")).toContain("√(4/2)");
+  });
+
+  it("refuses a spec too large for the memory limit, naming the memory and a shrink that fits", () => {
+    const big = spec(MLP.replace("width: 64, init: he-normal }\n  - relu\n  - { type: dense, width: 64", "width: 8192, init: he-normal }\n  - relu\n  - { type: dense, width: 8192"));
+    let error: unknown;
+    try {
+      runSimulation(big, { memoryLimit: 64 * 2 ** 20 });
+    } catch (e) {
+      error = e;
+    }
+    expect(error).toBeInstanceOf(SimulationTooLarge);
+    const e = error as SimulationTooLarge;
+    expect(e.message).toMatch(/would need about [\d.]+ GiB of memory, more than the limit of 0\.06 GiB/);
+    expect(e.message).toContain(`--shrink ${e.suggestedShrink}`);
+    expect(e.neededBytes).toBeGreaterThan(64 * 2 ** 20);
+    // the suggestion really fits
+    expect(() => runSimulation(big, { memoryLimit: 64 * 2 ** 20, shrink: { width: e.suggestedShrink!, batch: e.suggestedShrink!, positions: e.suggestedShrink! } })).not.toThrow();
+  });
+
+  it("rejects bad options with RangeError echoing the value", () => {
+    const s = spec(MLP);
+    expect(() => runSimulation(s, { draws: 0 })).toThrow(/draws must be .* got 0/);
+    expect(() => runSimulation(s, { plan: "nope" })).toThrow(/no plan named "nope" \(plans: half\)/);
+    expect(() => runSimulation(s, { shrink: { width: 1.5 } })).toThrow(/shrink width must be a whole number ≥ 1, got 1.5/);
+  });
+});
+
+describe("shrinking", () => {
+  it("keeps every layer's gain fan_in·var_w, so predicted forward magnitudes do not move", () => {
+    const s = spec(`name: fixed-std
+input: { tokens: 64 }
+training: { batch: 8, loss: { kind: cross-entropy, classes: 16 } }
+layers:
+  - { type: embedding, vocabulary: 100, width: 256, init: { kind: normal, std: 0.02 } }
+  - type: residual
+    branch:
+      - rms-norm
+      - { type: attention, heads: 8, head-width: 16, init: { kind: normal, std: 0.02 }, output-init: { kind: normal, std: 0.01 } }
+  - type: residual
+    branch:
+      - rms-norm
+      - { type: gated-feed-forward, hidden: 512, init: { kind: normal, std: 0.02 }, output-init: { kind: normal, std: 0.01 } }
+  - { type: dense, width: 16, init: { kind: normal, std: 0.05 } }
+`);
+    // positions stay: attention averages over them, so they are not a size the forward magnitudes ignore
+    const { spec: small, report } = shrinkSpec(s, { width: 4, batch: 2 });
+    expect(report.changes.join(" ")).toMatch(/widths ÷4/);
+    expect(report.changes.join(" ")).toMatch(/batch 8 → 4/);
+    const full = predict((buildGraph(s) as { ok: true; graph: never }).graph, s);
+    const shrunk = predict((buildGraph(small) as { ok: true; graph: never }).graph, small);
+    for (const id of ["residual-1.attention-1/pre-activation:query", "residual-2.gated-feed-forward-1/pre-activation:gate", "dense-3/pre-activation"]) {
+      const a = full.tensors.find((t) => t.id === id)!;
+      const b = shrunk.tensors.find((t) => t.id === id)!;
+      // the mean-field second moment is unchanged; only the finite-width median shift differs
+      expect(Math.abs(Math.log2(b.start.meanSquare! / a.start.meanSquare!)), id).toBeLessThan(0.01);
+    }
+  });
+});
+
+describe("counts of what storing does", () => {
+  // Property: the simulator's counts equal an element-by-element rounding with the format model (roundTo).
+  const formats: FormatName[] = ["binary16", "bfloat16", "e4m3", "e5m2", "binary32"];
+  it.each(formats)("flushed, overflowed and subnormal counts in %s match element-by-element rounding", (name) => {
+    const format = FORMATS[name];
+    fc.assert(
+      fc.property(
+        fc.array(
+          fc.oneof(
+            fc.double({ noNaN: true }),
+            fc.double({ min: -format.minNormal * 4, max: format.minNormal * 4, noNaN: true }),
+            fc.double({ min: -format.maxFinite * 2, max: format.maxFinite * 2, noNaN: true }),
+            fc.constantFrom(0, -0, format.flushBound, format.minSubnormal, format.overflowThreshold, Infinity, NaN),
+          ),
+          { minLength: 1, maxLength: 200 },
+        ),
+        fc.constantFrom("saturate" as const, "infinity-or-nan" as const),
+        fc.boolean(),
+        (values, overflow, flushSubnormals) => {
+          const data = Float64Array.from(values);
+          const options = { overflow, flushSubnormals };
+          const stats = measureTensor(data, format, options);
+          let flushed = 0;
+          let overflowed = 0;
+          let saturated = 0;
+          let subnormal = 0;
+          for (const x of values) {
+            if (!Number.isFinite(x)) continue;
+            const r = roundTo(format, x, options);
+            // saturation: a value that the non-saturating conversion would send past the range, clamped instead
+            const unclamped = roundTo(format, x, { ...options, overflow: "infinity-or-nan" });
+            if (x !== 0 && r === 0) flushed++;
+            else if (!Number.isFinite(r)) overflowed++;
+            else if (!Number.isFinite(unclamped)) saturated++;
+            else if (r !== 0 && Math.abs(r) < format.minNormal) subnormal++;
+          }
+          const n = values.length;
+          return (
+            stats.counts.flushed * n === flushed &&
+            stats.counts.overflowed * n === overflowed &&
+            stats.counts.saturated * n === saturated &&
+            stats.counts.subnormal * n === subnormal
+          );
+        },
+      ),
+      { numRuns: 200 },
+    );
+  });
+});
