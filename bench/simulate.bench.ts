@@ -6,7 +6,7 @@
  */
 import { bench, describe } from "vitest";
 import { matmul, matmulTransposeA, matmulTransposeB } from "../src/simulate/matmul.js";
-import { createRandomSource } from "../src/simulate/random.js";
+import { createRandom } from "../src/numeric/random.js";
 
 const BLOCKS = 48;
 const WIDTH = 256;
@@ -57,7 +57,7 @@ interface Network {
 }
 
 function makeNetwork(): Network {
-  const random = createRandomSource(2026);
+  const random = createRandom(2026);
   const he = Math.sqrt(2 / WIDTH);
   const matrix = (scale: number): Float64Array => {
     const m = new Float64Array(WIDTH * WIDTH);

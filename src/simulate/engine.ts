@@ -12,7 +12,7 @@
  * accumulate format when it is narrower than binary64. Optional optimizer steps follow, with the loss scale
  * removed before the update, master weights and optimizer states in their formats.
  *
- * All randomness comes from one seeded source per draw (src/simulate/random.ts), never from a global one.
+ * All randomness comes from one seeded source per draw (createRandom of src/numeric), never from a global one.
  */
 import { getFormat, roundArrayInPlace, type Format, type RoundOptions } from "../formats/index.js";
 import { buildGraph, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
@@ -21,7 +21,7 @@ import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward
 import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import type { RoundFunction } from "./matmul.js";
-import { createRandomSource, type RandomSource } from "./random.js";
+import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
 import { measureTensor, medianStats, selectElements } from "./stats.js";
@@ -163,7 +163,7 @@ function initialWeight(w: GraphWeight, random: RandomSource): Float64Array {
     case "uniform": {
       // U[−a, a] has variance a²/3 (common practice)
       const a = Math.sqrt(3 * w.variance);
-      for (let i = 0; i < data.length; i++) data[i] = a * (2 * random.uniform() - 1);
+      for (let i = 0; i < data.length; i++) data[i] = a * (2 * random.next() - 1);
       break;
     }
     case "constant":
@@ -176,7 +176,7 @@ function initialWeight(w: GraphWeight, random: RandomSource): Float64Array {
 }
 
 function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
-  const random = createRandomSource(seed);
+  const random = createRandom(seed);
   const model: Model = { weights: new Map(), master: new Map(), first: new Map(), second: new Map(), random, step: 0 };
   for (const layer of allLayers(setup.graph.layers)) {
     for (const w of layer.weights) {
@@ -202,7 +202,7 @@ function makeInput(setup: Setup, random: RandomSource): Float64Array {
   if (spec.input.kind === "tokens") {
     const first = graph.layers[0];
     const vocabulary = first !== undefined && first.spec.family === "embedding" ? first.spec.vocabulary : 1;
-    for (let i = 0; i < n; i++) x[i] = random.integer(vocabulary);
+    for (let i = 0; i < n; i++) x[i] = Math.floor(random.next() * vocabulary);
     return x;
   }
   const scale = spec.input.scale;
@@ -226,7 +226,7 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
   const context = (layer: GraphLayer, direction: "forward" | "backward"): KernelContext => {
     const ctx: KernelContext = {
       batch,
-      random: random.uniform,
+      random: random.next,
       store(info: InnerTensorInfo, data: Float64Array) {
         const role = direction === "forward" ? info.role : "activation-gradient";
         const id = `${layer.name}/${role}:${info.suffix}`;
@@ -294,7 +294,7 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
     const classes = loss.classes;
     const rows = output.length / classes;
     const targets = new Int32Array(rows);
-    for (let r = 0; r < rows; r++) targets[r] = random.integer(classes);
+    for (let r = 0; r < rows; r++) targets[r] = Math.floor(random.next() * classes);
     const r = crossEntropy(output, targets, rows, classes, loss.reduction);
     value = r.loss;
     gradient = r.gradient;

@@ -5,8 +5,8 @@ import { dot, gradientError, randomArray, testRandom } from "../simulate/gradche
 // Backward passes are checked against central finite differences (common practice), relative error < 1e-6.
 describe("dropout kernel", () => {
   it("the same seed gives the same mask; the kept share is near 1 − rate and kept values are scaled by 1/(1 − rate)", () => {
-    const a = dropoutMask(20000, 0.25, testRandom(14).uniform);
-    const b = dropoutMask(20000, 0.25, testRandom(14).uniform);
+    const a = dropoutMask(20000, 0.25, testRandom(14).next);
+    const b = dropoutMask(20000, 0.25, testRandom(14).next);
     expect([...a]).toEqual([...b]);
     const kept = a.filter((v) => v !== 0);
     // binomial standard deviation √(n·p·(1−p)) ≈ 61 elements: 5 of them is 0.0153
@@ -17,7 +17,7 @@ describe("dropout kernel", () => {
 
   it("backward matches central differences for a fixed mask", () => {
     const rnd = testRandom(15);
-    const mask = dropoutMask(30, 0.5, rnd.uniform);
+    const mask = dropoutMask(30, 0.5, rnd.next);
     const x = randomArray(rnd, 30);
     const r = randomArray(rnd, 30);
     const f = (): number => dot(dropoutForward(x, mask), r);

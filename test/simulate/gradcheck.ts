@@ -2,11 +2,11 @@
  * Central finite differences (common practice): ∂f/∂x_i ≈ (f(x + h·e_i) − f(x − h·e_i)) / 2h, error O(h²).
  * Used by the kernel tests to check every backward pass against its forward pass.
  */
-import { createRandomSource, type RandomSource } from "../../src/simulate/random.js";
+import { createRandom, type RandomSource } from "../../src/numeric/random.js";
 
 /** A seeded source for test data. */
 export function testRandom(seed: number): RandomSource {
-  return createRandomSource(seed);
+  return createRandom(seed);
 }
 
 /** An array of n standard normal values (times `scale`). */

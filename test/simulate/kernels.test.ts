@@ -2,7 +2,7 @@ import { describe, expect, it } from "vitest";
 import { buildGraph, forwardOrder, type GraphLayer } from "../../src/graph/index.js";
 import { kernelFor, kernels, type KernelContext, type KernelForward } from "../../src/ops/kernels.js";
 import { parseSpec } from "../../src/spec/index.js";
-import { createRandomSource } from "../../src/simulate/random.js";
+import { createRandom } from "../../src/numeric/random.js";
 import { dot, gradientError, randomArray, testRandom } from "./gradcheck.js";
 
 /**
@@ -32,7 +32,7 @@ function run(layers: readonly GraphLayer[], x: Float64Array, weights: Weights, s
   const saved: { layer: GraphLayer; x: Float64Array; forward: KernelForward; ctx: KernelContext }[] = [];
   let current = x;
   for (const layer of layers) {
-    const ctx: KernelContext = { batch: BATCH, random: createRandomSource(seed + layer.index).uniform, store: () => {} };
+    const ctx: KernelContext = { batch: BATCH, random: createRandom(seed + layer.index).next, store: () => {} };
     if (layer.branch !== undefined) {
       const branch = layer.branch;
       let back: ((dy: Float64Array, grads: Map<string, Float64Array>) => Float64Array) | undefined;
@@ -89,7 +89,7 @@ function check(layers: GraphLayer[], seed: number, tokens?: number): void {
   }
   const first = layers[0]!;
   const n = BATCH * elements(first.input);
-  const x = tokens === undefined ? randomArray(rnd, n) : Float64Array.from({ length: n }, () => rnd.integer(tokens));
+  const x = tokens === undefined ? randomArray(rnd, n) : Float64Array.from({ length: n }, () => Math.floor(rnd.next() * tokens));
   const probe = run(layers, x, weights, seed);
   const r = randomArray(rnd, probe.output.length);
   const f = (): number => dot(run(layers, x, weights, seed).output, r);
