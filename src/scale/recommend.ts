@@ -119,6 +119,10 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
   };
 }
 
+function binades(n: number): string {
+  return `${n} binade${n === 1 ? "" : "s"}`;
+}
+
 function describe(
   window: ScaleWindow,
   format: FormatName,
@@ -130,7 +134,7 @@ function describe(
   if (window.empty) {
     if (window.gapBinades !== null) {
       out.push(
-        `No static loss scale keeps ${format} gradients within the budget: ${window.upperEdgeSetBy} overflows above ${pow(window.highestLog2!)} while ${window.lowerEdgeSetBy} needs at least ${pow(window.lowestLog2!)}; they pull ${window.gapBinades} binades apart.`,
+        `No static loss scale keeps ${format} gradients within the budget: ${window.upperEdgeSetBy} overflows above ${pow(window.highestLog2!)} while ${window.lowerEdgeSetBy} needs at least ${pow(window.lowestLog2!)}; they pull ${binades(window.gapBinades)} apart.`,
       );
     } else if (window.highestLog2 === null) {
       out.push(`Every searched scale overflows ${format} gradients beyond the budget; ${window.upperEdgeSetBy} overflows first.`);
@@ -138,12 +142,15 @@ function describe(
       out.push(`No searched scale keeps the flushed gradient energy of ${window.lowerEdgeSetBy} under ${options.flushTolerance} in ${format}.`);
     }
   } else if (window.unscaledFits) {
+    const everywhere = window.lowestLog2 === options.lowestLog2 && window.highestLog2 === options.highestLog2;
     out.push(
-      `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, and 1 is among them.`,
+      everywhere
+        ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within bounds.`
+        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, and 1 is among them.`,
     );
   } else {
     out.push(
-      `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick keeps ${window.marginBelowOverflow} binade(s) below the overflow edge.`,
+      `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick sits ${binades(window.marginAboveFlush!)} above the flush edge and ${binades(window.marginBelowOverflow!)} below the overflow edge.`,
     );
   }
   if (requested) {
@@ -208,7 +215,7 @@ function rankRemedies(
       sentence: w.empty
         ? "bfloat16 gradients do not open a window either."
         : w.unscaledFits
-          ? `Store gradients in bfloat16: no loss scale needed (the window runs from 2^${w.lowestLog2} to 2^${w.highestLog2}), at 8 significant bits instead of 11.`
+          ? `Store gradients in bfloat16: no loss scale needed (scales from 2^${w.lowestLog2} to 2^${w.highestLog2} all fit), at 8 significant bits instead of 11.`
           : `Store gradients in bfloat16: the window becomes 2^${w.lowestLog2} to 2^${w.highestLog2}.`,
     });
   }
