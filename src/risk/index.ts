@@ -10,3 +10,4 @@ export { plainNumber, percent, binades } from "./words.js";
 export * from "./judge.js";
 export * from "./find.js";
 export * from "./curves.js";
+export { blockScaledRisk, type BlockScaledRisk } from "./blocks.js";

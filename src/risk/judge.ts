@@ -2,6 +2,7 @@
  * A prediction judged against a precision plan: risk per tensor and format, operation hazards, a verdict per
  * format with its reasons. Pure; `check` (src/check.ts) builds the prediction and calls {@link judgePrediction}.
  */
+import { blockScaledRiskCached } from "./blocks.js";
 import { FORMATS, type Format } from "../formats/index.js";
 import { FORMAT_NAMES, isFormatName, type FormatName } from "../formats/names.js";
 import type {
@@ -228,6 +229,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
         tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {
           judged,
           perTensorScaling: FORMATS[format].bits === 8 && evaluated.scaling !== "none",
+          blockScaling: FORMATS[format].bits === 8 && evaluated.scaling === "block" ? blockScaledRiskCached(FORMATS[format]) : null,
           thresholds,
         }),
       ];
@@ -438,7 +440,7 @@ function checkAssumptions(
     notes.push(
       plan.scaling === "none"
         ? "8-bit formats are judged without scale factors."
-        : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (block scaling is judged as per-tensor scaling, which is conservative)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.`,
+        : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (with per-block scaling, flushing and clipping follow the rule for blocks of 32 elements of Gaussian-like values)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.`,
     );
   }
   if (addedSites) {

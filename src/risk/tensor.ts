@@ -11,6 +11,7 @@ import {
   type ProfileRisk,
   type ProfileStatistics,
 } from "./profile.js";
+import type { BlockScaledRisk } from "./blocks.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { binades, percent, plainNumber, when } from "./words.js";
 
@@ -89,6 +90,8 @@ export interface TensorRiskOptions {
   judged: boolean;
   /** whether the conversion to this format applies a per-tensor scale factor (8-bit formats with scaling) */
   perTensorScaling: boolean;
+  /** per-block scale factors (OCP Microscaling, blocks of 32): the block-scaled conversion's shares, replacing the per-tensor ones */
+  blockScaling?: BlockScaledRisk | null;
   thresholds: RiskThresholds;
 }
 
@@ -106,7 +109,21 @@ export function tensorFormatRisk(
     const factor = 2 ** scaleLog2;
     // scaling is linear, so the statistics scale with it
     const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
-    return { risk: profileRisk(scaleProfile(scaled, factor), limits, rescaled), scaleLog2 };
+    const risk = profileRisk(scaleProfile(scaled, factor), limits, rescaled);
+    const block = options.blockScaling;
+    if (!block) return { risk, scaleLog2 };
+    // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
+    // a clipped block maximum is an overflow only when the conversion does not saturate (OCP MX leaves it to the implementation)
+    const nonzero = Math.max(1, profile.elements * (1 - profile.zeroFraction));
+    return {
+      risk: {
+        ...risk,
+        flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
+        flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
+        overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
+      },
+      scaleLog2,
+    };
   };
   const start = evaluate(tensor.start, statistics.start);
   const end = evaluate(tensor.end, statistics.end);

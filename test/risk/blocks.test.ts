@@ -1,7 +1,7 @@
 import { describe, expect, it } from "vitest";
 import { FORMATS, roundTo } from "../../src/formats/index.js";
 import { createRandom } from "../../src/numeric/index.js";
-import { blockScaledRisk } from "../../src/scale/blocks.js";
+import { blockScaledRisk } from "../../src/risk/blocks.js";
 
 /**
  * The conversion rule itself, element by element, with the format model (SCIENCE.md §1.4, OCP MX v1.0 §6 /
@@ -58,5 +58,26 @@ describe("blockScaledRisk (per-block scale factors, blocks of 32)", () => {
   it("never clips a block whose maximum sits in the lower part of its binade (e4m3: below 1.75·2^m)", () => {
     // the clipped share is at most one element per block plus its near neighbours: well under 1/32 + slack
     expect(blockScaledRisk(FORMATS.e4m3).clippedFraction).toBeLessThan(1 / 32);
+  });
+});
+
+describe("check with per-block scale factors", () => {
+  it("flushes no more than per-tensor scaling and turns saturation into bounded clipping", async () => {
+    const { loadSpec } = await import("../../src/spec/index.js");
+    const { check } = await import("../../src/check.js");
+    const { ROOT } = await import("../helpers/run.js");
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/transformer-encoder.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const eightBit = loaded.spec.plans.find((p) => p.weights === "e4m3");
+    if (!eightBit) throw new Error("the example has no 8-bit plan");
+    const judged = (scaling: "tensor" | "block") => check({ ...loaded.spec, precision: { ...eightBit, scaling, overflow: "saturate" } });
+    const worst = (r: ReturnType<typeof judged>) =>
+      Math.max(...r.tensors.flatMap((t) => t.risks.filter((x) => x.judged && x.format === "e4m3").map((x) => x.worst.flushedFraction)));
+    const perTensor = judged("tensor");
+    const perBlock = judged("block");
+    expect(worst(perBlock)).toBeLessThanOrEqual(worst(perTensor));
+    const saturations = (r: ReturnType<typeof judged>) => r.tensors.flatMap((t) => t.risks.flatMap((x) => x.findings)).filter((f) => f.kind === "saturation");
+    expect(saturations(perBlock)).toHaveLength(0);
   });
 });

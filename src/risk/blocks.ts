@@ -72,3 +72,15 @@ export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flu
     clippedFraction: clipped / mass / n,
   };
 }
+
+const cache = new Map<string, BlockScaledRisk>();
+
+/** {@link blockScaledRisk} for blocks of 32, computed once per format. */
+export function blockScaledRiskCached(format: Pick<Format, "name" | "emax" | "maxFinite" | "flushBound">): BlockScaledRisk {
+  let hit = cache.get(format.name);
+  if (!hit) {
+    hit = blockScaledRisk(format, 32);
+    cache.set(format.name, hit);
+  }
+  return hit;
+}
