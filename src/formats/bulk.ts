@@ -483,6 +483,9 @@ export function decodeArray<T extends FloatArray = Float32Array>(format: Format,
   return out;
 }
 
+const ENCODE_BLOCK = new Float64Array(4096);
+const ENCODE_BLOCK_WORDS = new Uint32Array(ENCODE_BLOCK.buffer);
+
 /**
  * Round values into a 16-bit or 8-bit format and write their bit patterns into `codes` (a new array of the
  * right width when omitted). NaN results are written as the canonical NaN code.
@@ -495,9 +498,6 @@ export function encodeArray<C extends CodeArray = CodeArray>(format: Format, dat
   const out = (codes ?? (format.bits === 16 ? new Uint16Array(data.length) : new Uint8Array(data.length))) as C;
   checkCodeArray(format, out);
   if (out.length < data.length) throw new RangeError(`target holds ${out.length} codes; ${data.length} values given`);
-  const rounded = Float64Array.from(data);
-  roundArrayInPlace(format, rounded, options);
-  const n = rounded.length;
   const fractionBits = format.fractionBits;
   const signBit = 2 ** (format.bits - 1);
   const fieldTop = 2 ** format.exponentBits - 1;
@@ -505,26 +505,32 @@ export function encodeArray<C extends CodeArray = CodeArray>(format: Format, dat
   const minNormal = format.minNormal;
   const minSubnormal = format.minSubnormal;
   const fieldShift = format.bias - 1023;
-  const words = new Uint32Array(rounded.buffer, 0, n * 2);
-  if (!LITTLE_ENDIAN) {
-    for (let i = 0; i < n; i++) out[i] = encodeRounded(format, rounded[i] as number);
-    return out;
-  }
-  for (let i = 0; i < n; i++) {
-    const r = rounded[i] as number;
-    const high = words[2 * i + 1] as number;
-    const sign = high >>> 31 === 0 ? 0 : signBit;
-    const a = Math.abs(r);
-    let code: number;
-    if (r !== r) code = nan;
-    else if (a === Infinity) code = sign | (fieldTop << fractionBits);
-    else if (a < minNormal) code = sign | (a / minSubnormal);
-    else {
-      // a normal value on the grid: its binary64 exponent re-biased, and the top fraction bits
-      const field = ((high >>> 20) & 0x7ff) + fieldShift;
-      code = sign | (field << fractionBits) | ((high & 0xfffff) >>> (20 - fractionBits));
+  // round a block at a time into a reused buffer, then read each rounded value's binary64 fields
+  const rounded = ENCODE_BLOCK;
+  const words = ENCODE_BLOCK_WORDS;
+  for (let start = 0; start < data.length; start += rounded.length) {
+    const end = Math.min(start + rounded.length, data.length);
+    const block = rounded.subarray(0, end - start);
+    roundArray(format, data.subarray(start, end), options, block);
+    for (let j = 0; j < block.length; j++) {
+      const r = block[j] as number;
+      let code: number;
+      if (!LITTLE_ENDIAN) code = encodeRounded(format, r);
+      else {
+        const high = words[2 * j + 1] as number;
+        const sign = high >>> 31 === 0 ? 0 : signBit;
+        const a = Math.abs(r);
+        if (r !== r) code = nan;
+        else if (a === Infinity) code = sign | (fieldTop << fractionBits);
+        else if (a < minNormal) code = sign | (a / minSubnormal);
+        else {
+          // a normal value on the grid: its binary64 exponent re-biased, and the top fraction bits
+          const field = ((high >>> 20) & 0x7ff) + fieldShift;
+          code = sign | (field << fractionBits) | ((high & 0xfffff) >>> (20 - fractionBits));
+        }
+      }
+      out[start + j] = code;
     }
-    out[i] = code;
   }
   return out;
 }
