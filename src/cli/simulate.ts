@@ -1,4 +1,310 @@
+import { Option } from "commander";
+import { predict } from "../magnitude/index.js";
+import { formatBinades, formatBytes, formatPercent, formatValue } from "../report/number.js";
+import { renderTable, type Cell } from "../report/table.js";
+import { formatSpecIssue, loadSpec } from "../spec/index.js";
+import {
+  simulate,
+  SimulationTooLarge,
+  zeroAfterStorage,
+  type Comparison,
+  type ComparisonRow,
+  type MeasuredTensor,
+  type ShrinkFactors,
+  type SimulationReport,
+  type SimulationResult,
+} from "../simulate/index.js";
 import type { RegisterCommand } from "./commands.js";
+import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
-/** `headroom simulate` — not built yet; registers nothing. */
-export const register: RegisterCommand = () => {};
+interface SimulateFlags {
+  steps: string;
+  seed: string;
+  draws: string;
+  shrink?: string;
+  plan?: string;
+  lossScale?: string;
+  rounding: boolean;
+  memory: string;
+  microBatches: string;
+  all?: boolean;
+  json?: boolean;
+}
+
+const ESTIMATE_NOTE =
+  "A simulation on random data is a second opinion, not a guarantee; predictions are estimates. Confirm with a short training run.";
+
+/** `headroom simulate SPEC`: run the network in float64 with planned storage rounding and compare with the prediction. */
+export const register: RegisterCommand = (program) => {
+  program
+    .command("simulate")
+    .description(
+      "Run the described network forward and backward on random data in float64, rounding every stored tensor to its " +
+        "planned format, and put the measured magnitudes beside the predicted ones",
+    )
+    .argument("<spec>", "network spec (YAML or JSON)")
+    .option("--steps <n>", "optimizer steps to run after the first measurement, to see the first steps' drift", "0")
+    .option("--seed <n>", "seed of the first draw (draw i uses seed + i)", "1")
+    .option("--draws <n>", "independent draws of weights and data; the median is reported", "1")
+    .option("--shrink <factors>", "shrink for speed: one factor for widths, batch and positions (e.g. 4), or width=4,batch=8,positions=2,classes=2,image=2")
+    .option("--plan <name>", "store tensors in this plan of the spec's `plans` instead of its `precision`")
+    .option("--loss-scale <scale>", "static loss scale (default: the plan's, else 1)")
+    .option("--no-rounding", "keep every tensor in binary64 (counts still say what storing would do)")
+    .option("--memory <GiB>", "refuse runs that would need more memory than this", "4")
+    .option("--micro-batches <n>", "micro-batches (accumulation steps × workers) run per step at most", "8")
+    .option("--all", "list every tensor, not only those with findings or disagreements")
+    .option("--json", "write the result as JSON")
+    .addHelpText(
+      "after",
+      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input.",
+    )
+    .action(async (path: string, flags: SimulateFlags) => {
+      const loaded = await loadSpec(path);
+      if (!loaded.ok) {
+        for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+        raiseExitCode(EXIT.inputError);
+        return;
+      }
+      for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+      const options = {
+        steps: wholeNumber("--steps", flags.steps, 0, 10000),
+        seed: wholeNumber("--seed", flags.seed, 0, Number.MAX_SAFE_INTEGER),
+        draws: wholeNumber("--draws", flags.draws, 1, 1000),
+        round: flags.rounding,
+        memoryLimit: positive("--memory", flags.memory) * 2 ** 30,
+        microBatches: wholeNumber("--micro-batches", flags.microBatches, 1, 1000),
+        predict,
+        ...(flags.shrink !== undefined ? { shrink: parseShrink(flags.shrink) } : {}),
+        ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
+        ...(flags.lossScale !== undefined ? { lossScale: positive("--loss-scale", flags.lossScale) } : {}),
+      };
+      let report: SimulationReport;
+      try {
+        report = simulate(loaded.spec, options);
+      } catch (error) {
+        if (error instanceof SimulationTooLarge) throw new UserError(`${path}: ${error.message}`);
+        if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+        throw error;
+      }
+      process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
+      raiseExitCode(simulationExitCode(report.result));
+    });
+};
+
+function wholeNumber(flag: string, text: string, min: number, max: number): number {
+  const value = Number(text);
+  if (!Number.isInteger(value) || value < min || value > max) {
+    throw new UserError(`${flag} "${text}": expected a whole number from ${min} to ${max}`);
+  }
+  return value;
+}
+
+function positive(flag: string, text: string): number {
+  const value = Number(text);
+  if (!(value > 0) || !Number.isFinite(value)) throw new UserError(`${flag} "${text}": expected a positive number`);
+  return value;
+}
+
+const SHRINK_KEYS = ["width", "batch", "positions", "classes", "image"] as const;
+
+/** `4` (widths, batch and positions ÷4) or `width=4,batch=8,...`. */
+export function parseShrink(text: string): Partial<ShrinkFactors> {
+  const trimmed = text.trim();
+  if (/^\d+$/.test(trimmed)) {
+    const f = Number(trimmed);
+    if (f < 1) throw new UserError(`--shrink "${text}": a factor must be a whole number of at least 1`);
+    return { width: f, batch: f, positions: f };
+  }
+  const out: Partial<ShrinkFactors> = {};
+  for (const part of trimmed.split(",")) {
+    const match = /^\s*([a-z]+)\s*=\s*(\d+)\s*$/.exec(part);
+    const key = match?.[1] as (typeof SHRINK_KEYS)[number] | undefined;
+    if (match === null || key === undefined || !SHRINK_KEYS.includes(key) || Number(match[2]) < 1) {
+      throw new UserError(`--shrink "${text}": expected a factor such as 4, or ${SHRINK_KEYS.map((k) => `${k}=N`).join(",")} with whole N ≥ 1`);
+    }
+    out[key] = Number(match[2]);
+  }
+  return out;
+}
+
+/** 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation; 0 otherwise. */
+export function simulationExitCode(result: SimulationResult): number {
+  const bad = result.tensors.some((t) => t.median.counts.overflowed + t.median.counts.saturated + t.median.counts.nonFinite > 0);
+  return bad ? EXIT.findings : EXIT.ok;
+}
+
+function hasFinding(t: MeasuredTensor): boolean {
+  const c = t.median.counts;
+  return c.flushed > 0 || c.overflowed > 0 || c.saturated > 0 || c.nonFinite > 0 || c.subnormal > 0.01;
+}
+
+function share(x: number): string {
+  return x === 0 ? "0" : formatPercent(x);
+}
+
+/** The terminal report: header, what was shrunk, the tensor table, disagreements, optimizer steps, assumptions. */
+export function renderSimulationText(report: SimulationReport, options: { all?: boolean } = {}): string {
+  const { result, comparison } = report;
+  const lines: string[] = [];
+  const f = result.formats;
+  lines.push(`headroom simulate: ${result.specName}, plan ${result.planName}`);
+  lines.push(
+    `  stored: activations ${f.activations}, weights ${f.weights}, gradients ${f.gradients}, optimizer states ${f.optimizerStates}, ` +
+      `master weights ${f.masterWeights}; accumulate ${f.accumulate}; loss scale ${result.lossScale}` +
+      (result.rounded ? "" : " (no rounding: binary64 throughout; counts say what storing would do)"),
+  );
+  const seeds = result.seeds.length === 1 ? `seed ${result.seeds[0]}` : `seeds ${result.seeds[0]}–${result.seeds[result.seeds.length - 1]} (median of ${result.seeds.length} draws)`;
+  lines.push(`  ${seeds}; ${result.microBatches.run} of ${result.microBatches.wanted} micro-batch(es) per step; about ${formatBytes(result.memory.estimateBytes)} of memory`);
+  if (result.shrink.shrunk) {
+    lines.push("", "Shrunk for speed:");
+    for (const change of result.shrink.changes) lines.push(`  - ${change}`);
+    lines.push("  Predictions below are for the shrunk network (the same analytic rules); the full-size prediction is in the \"full size\" column.");
+  }
+  lines.push("");
+  const rows = comparison?.rows ?? [];
+  const byId = new Map(rows.map((r) => [r.id, r]));
+  const shown = result.tensors.filter((t) => options.all === true || hasFinding(t) || byId.get(t.id)?.disagrees === true);
+  const columns = [
+    { title: "tensor", maxWidth: 60 },
+    { title: "format" },
+    { title: "predicted rms" },
+    { title: "measured rms" },
+    { title: "diff" },
+    ...(result.shrink.shrunk ? [{ title: "full size" }] : []),
+    { title: "max" },
+    { title: "p1" },
+    { title: "p50" },
+    { title: "p99" },
+    { title: "zeros" },
+    { title: "flushed pred" },
+    { title: "flushed" },
+    { title: "subnormal" },
+    { title: "overflow" },
+    ...(result.steps > 0 ? [{ title: `rms after ${result.steps}` }] : []),
+  ];
+  const cells: Cell[][] = shown.map((t) => {
+    const row = byId.get(t.id);
+    const m = t.median;
+    return [
+      t.id,
+      m.counts.format,
+      row ? formatValue(row.predictedRms) : "",
+      formatValue(m.rms),
+      row ? formatBinades(row.differenceBinades) : "",
+      ...(result.shrink.shrunk ? [row?.fullSizeRms !== undefined ? formatValue(row.fullSizeRms) : ""] : []),
+      formatValue(m.max),
+      formatValue(m.quantiles[0]),
+      formatValue(m.quantiles[2]),
+      formatValue(m.quantiles[4]),
+      share(m.zeroFraction),
+      row && !Number.isNaN(row.predictedFlushed) ? share(row.predictedFlushed) : "",
+      share(m.counts.flushed),
+      share(m.counts.subnormal),
+      share(m.counts.overflowed + m.counts.saturated + m.counts.nonFinite),
+      ...(result.steps > 0 ? [t.after !== undefined ? formatValue(t.after.rms) : ""] : []),
+    ];
+  });
+  lines.push(
+    options.all === true
+      ? `Every tensor (${result.tensors.length}); diff = log2(measured / predicted rms), rms over nonzero elements, quantiles of |x|:`
+      : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
+  );
+  lines.push(renderTable(columns, cells).trimEnd());
+  if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));
+  if (result.steps > 0) lines.push("", ...stepLines(result));
+  lines.push("", "Assumptions:");
+  for (const a of result.assumptions) lines.push(`  - ${a}`);
+  lines.push("", ESTIMATE_NOTE);
+  return lines.join("\n") + "\n";
+}
+
+function disagreementLines(comparison: Comparison): string[] {
+  const { tolerance, disagreements, rows } = comparison;
+  const out = [
+    `Where prediction and measurement disagree (beyond ${tolerance.binades} binade in rms or ${tolerance.flushed} in the share zero after storage): ${disagreements.length} of ${rows.length} tensors`,
+  ];
+  const list = disagreements.slice(0, 20);
+  for (const r of list) out.push(`  - ${describe(r)}`);
+  if (disagreements.length > list.length) out.push(`  … and ${disagreements.length - list.length} more (see --json)`);
+  if (comparison.measuredOnly.length > 0) out.push(`  Measured only (no prediction for them): ${comparison.measuredOnly.length} inner tensor(s).`);
+  return out;
+}
+
+function describe(r: ComparisonRow): string {
+  const m = r.measured.median;
+  const zero = zeroAfterStorage(m);
+  const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
+  const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
+  return `${r.id}: measured rms ${formatValue(m.rms)}, predicted ${formatValue(r.predictedRms)} (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)${zeroText}`;
+}
+
+function stepLines(result: SimulationResult): string[] {
+  const history = result.history[0] ?? [];
+  const out = [`Optimizer steps (draw with seed ${result.seeds[0]}):`];
+  const cells: Cell[][] = history.map((h) => {
+    const swamped = Object.values(h.swamped);
+    const ratios = Object.values(h.updateRatio);
+    return [
+      h.step,
+      formatValue(h.learningRate),
+      formatValue(h.loss),
+      h.skipped ? "skipped (overflow)" : "applied",
+      swamped.length > 0 ? share(Math.max(...swamped)) : "",
+      ratios.length > 0 ? formatValue(Math.max(...ratios)) : "",
+    ];
+  });
+  out.push(renderTable([{ title: "step" }, { title: "learning rate" }, { title: "loss before" }, { title: "update" }, { title: "most swamped" }, { title: "largest update/weight" }], cells).trimEnd());
+  return out;
+}
+
+/** JSON: the run's settings, every tensor with its measured median beside the prediction, disagreements, steps. */
+export function renderSimulationJson(report: SimulationReport): string {
+  const { result, comparison } = report;
+  const rows = new Map((comparison?.rows ?? []).map((r) => [r.id, r]));
+  const finite = (x: number): number | null => (Number.isFinite(x) ? x : null);
+  const out = {
+    spec: result.specName,
+    plan: result.planName,
+    formats: result.formats,
+    lossScale: result.lossScale,
+    seeds: result.seeds,
+    steps: result.steps,
+    rounded: result.rounded,
+    microBatches: result.microBatches,
+    memory: result.memory,
+    shrink: result.shrink,
+    tensors: result.tensors.map((t) => {
+      const r = rows.get(t.id);
+      return {
+        id: t.id,
+        layer: t.layer,
+        role: t.role,
+        slot: t.slot,
+        measured: t.median,
+        ...(t.after !== undefined ? { afterSteps: t.after } : {}),
+        ...(r !== undefined
+          ? {
+              predicted: {
+                rms: r.predictedRms,
+                log2Spread: r.predictedLog2Spread,
+                zeroFraction: r.predictedZeroFraction,
+                flushed: finite(r.predictedFlushed),
+                overflow: finite(r.predictedOverflow),
+                ...(r.fullSizeRms !== undefined ? { fullSizeRms: r.fullSizeRms } : {}),
+              },
+              differenceBinades: finite(r.differenceBinades),
+              disagrees: r.disagrees,
+            }
+          : {}),
+      };
+    }),
+    ...(comparison !== undefined
+      ? { tolerance: comparison.tolerance, disagreements: comparison.disagreements.map((r) => r.id), measuredOnly: comparison.measuredOnly, predictedOnly: comparison.predictedOnly }
+      : {}),
+    history: result.history,
+    initialLoss: result.initialLoss,
+    assumptions: result.assumptions,
+    note: ESTIMATE_NOTE,
+  };
+  return JSON.stringify(out, null, 2) + "\n";
+}

@@ -142,8 +142,10 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
     );
   }
   if (rescaled > 0) changes.push(`fixed-scale initialisations (normal std, uniform limit) of ${rescaled} layer spec(s) multiplied by √(fan-in ratio), so every layer keeps its gain fan_in·var_w`);
-  if (f.batch > 1) changes.push(`batch ${spec.training.batch} → ${training.batch}`);
-  if (f.positions > 1 && spec.input.kind !== "image") changes.push(`positions ${spec.input.positions} → ${(input as { positions: number }).positions}`);
+  if (training.batch !== spec.training.batch) changes.push(`batch ${spec.training.batch} → ${training.batch}`);
+  if (spec.input.kind !== "image" && input.kind !== "image" && input.positions !== spec.input.positions) {
+    changes.push(`positions ${spec.input.positions} → ${input.positions}`);
+  }
   if (f.classes > 1 && spec.training.loss.kind === "cross-entropy") {
     changes.push(`classes ${spec.training.loss.classes} → ${(training.loss as { classes: number }).classes}`);
   }
