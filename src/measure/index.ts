@@ -9,3 +9,25 @@ export { ChannelAccumulator, type ChannelAxis } from "./channels.js";
 export * from "./scan.js";
 export { expandPaths, isPattern } from "./paths.js";
 export { castTarget, DEFAULT_SCAN_TARGETS, type CastTargetOptions } from "./cast.js";
+export {
+  applyMeasurements,
+  calibrateGraph,
+  measuredProfile,
+  readWeightFiles,
+  recordedProfile,
+  weightTensorId,
+  type MatchRule,
+  type MeasurementReport,
+  type WeightCalibration,
+  type WeightFileData,
+  type WeightMatch,
+} from "./calibrate.js";
+export {
+  parseCsv,
+  parseRecordedStatistics,
+  STATISTIC_ROLES,
+  type RecordedStatistic,
+  type StatisticsIssue,
+  type StatisticsResult,
+} from "./statistics.js";
+export { loadMeasurements, MAX_STATISTICS_BYTES, type Measurements } from "./measurements.js";
