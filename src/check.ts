@@ -2,9 +2,11 @@
  * `check`: a network spec in, a judgement out. Builds the tensor graph, predicts every tensor's magnitudes and
  * judges them against the precision plan (src/risk/judge.ts). Pure; `checkFile` is the thin loader around it.
  */
-import { buildGraph, type GraphIssue } from "./graph/index.js";
+import { buildGraph, type Graph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
 import { FORMATS } from "./formats/index.js";
+import type { Prediction } from "./magnitude/types.js";
+import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
 import { judgePrediction, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck } from "./scale/optimizer.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
@@ -50,12 +52,12 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  * network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
-export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}): CheckAnswer {
+export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements): CheckAnswer {
   const plan = choosePlan(spec, options.plan);
   const built = buildGraph(spec);
   if (!built.ok) throw new CheckInputError(built.issues);
   const planned = { ...spec, precision: plan };
-  const prediction = predict(built.graph, planned);
+  const prediction = measuredPrediction(built.graph, planned, measurements);
   const answer = needsLossScale(plan)
     ? lossScaleAnswer(prediction, plan, {
         steps: spec.training.horizon.steps,
@@ -97,6 +99,25 @@ function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {
   };
 }
 
+/**
+ * The prediction, with measured data where the spec has it: measured weights replace the initialisation before
+ * propagation; recorded statistics replace profiles after it (src/measure/calibrate.ts).
+ */
+function measuredPrediction(graph: Graph, spec: NetworkSpec, measurements: Measurements | undefined): Prediction {
+  if (measurements === undefined) return predict(graph, spec);
+  const calibration = measurements.weights ? calibrateGraph(graph, measurements.weights, spec.measured?.names ?? {}) : undefined;
+  const prediction = predict(calibration?.graph ?? graph, spec);
+  return applyMeasurements(prediction, calibration, measurements.statistics, measurements.statisticsFile).prediction;
+}
+
+/**
+ * Read what a spec's `measured` section names (weight files, a recorded-statistics file), for {@link check};
+ * undefined when the spec has none. Problems come back as one-line messages in `problems`.
+ */
+export async function loadSpecMeasurements(spec: NetworkSpec): Promise<Measurements | undefined> {
+  return spec.measured === undefined ? undefined : loadMeasurements(spec.measured, spec.source);
+}
+
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
   if (name === undefined || name === spec.precision.name) return spec.precision;
   const found = spec.plans.find((plan) => plan.name === name);
@@ -119,8 +140,11 @@ export type CheckFileResult =
 export async function checkFile(path: string, options: CheckAnswerOptions = {}): Promise<CheckFileResult> {
   const loaded = await loadSpec(path);
   if (!loaded.ok) return { ok: false, issues: loaded.issues };
+  const measurements = await loadSpecMeasurements(loaded.spec);
+  // unreadable measured data leaves those profiles predicted; say so at the spec's `measured` key
+  const measuredWarnings = (measurements?.problems ?? []).map((message) => ({ ...loaded.locate(["measured"]), path: "measured", message }));
   try {
-    return { ok: true, result: check(loaded.spec, options), warnings: loaded.warnings };
+    return { ok: true, result: check(loaded.spec, options, measurements), warnings: [...loaded.warnings, ...measuredWarnings] };
   } catch (error) {
     if (error instanceof CheckInputError) {
       return {

@@ -1,5 +1,5 @@
 import { Option, type Command } from "commander";
-import { check, CheckInputError } from "../check.js";
+import { check, CheckInputError, loadSpecMeasurements } from "../check.js";
 import { FORMAT_NAMES, getFormat, type FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
@@ -61,8 +61,12 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
     return undefined;
   }
   for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
+  const measurements = await loadSpecMeasurements(loaded.spec);
+  for (const problem of measurements?.problems ?? []) process.stderr.write(`headroom: ${problem}\n`);
+  if (measurements !== undefined && measurements.problems.length > 0) raiseExitCode(EXIT.inputError);
   try {
-    return check(loaded.spec, options);
+    return check(loaded.spec, options, measurements);
   } catch (error) {
     if (error instanceof CheckInputError) {
       for (const issue of error.issues) {
