@@ -229,6 +229,12 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   out += style.role("heading", `headroom check: ${result.spec.name}`) + ` (${result.spec.source})\n`;
   out += wrap(`plan ${result.plan.name}: ${describePlan(result.plan)}.`, width, "", "  ");
   out += wrap(describeLossScale(result.lossScale), width, "", "  ");
+  // profiles from tensor files or recorded statistics (the spec's `measured` section) are named; the rest are predicted
+  const measured = result.tensors.filter((t) => t.source === "measured").map((t) => t.id);
+  if (measured.length > 0) {
+    const names = measured.length > 8 ? `${measured.slice(0, 8).join(", ")} and ${measured.length - 8} more` : measured.join(", ");
+    out += wrap(`measured profiles: ${names}; every other profile is predicted.`, width, "", "  ");
+  }
 
   out += "\n" + style.role("strong", "Verdict") + ` ${verdictText(result.verdict, style)}\n`;
   out += "\n" + style.role("strong", "Verdict per format") + "\n";

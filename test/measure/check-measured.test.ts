@@ -68,7 +68,7 @@ describe("check with measured data", () => {
     expect(result.assumptions.join(" ")).toMatch(/keeps the spec's initialisation \(no tensor matched\): fc2\/weight/);
     // the text output carries the same notes
     const text = runCli(["check", path]);
-    expect(text.stdout).toMatch(/Measured profiles: fc1\/weight/);
+    expect(text.stdout).toMatch(/measured profiles: fc1\/weight, fc2\/pre-activation; every other profile is predicted\./);
   });
 
   it("the same spec without the checkpoint predicts from initialisation, 3000/sqrt(2/16) times smaller", async () => {
