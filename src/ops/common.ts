@@ -42,10 +42,16 @@ export function fmt(value: number): string {
   return a >= 1e4 || a < 1e-3 ? value.toExponential(3) : Number(value.toPrecision(4)).toString();
 }
 
+/** The shared (per-feature batch mean²) part of a signal's second moment. */
+export function sharedOf(signal: Signal): number {
+  return signal.shared ?? signal.mean * signal.mean;
+}
+
 /** A zero-mean Gaussian tensor made by a random linear map of the given output width. */
-export function linearOutput(q: number, logVar: number, width: number): Signal {
+export function linearOutput(q: number, logVar: number, width: number, shared = 0): Signal {
   return {
     q,
+    shared,
     mean: 0,
     zeroFraction: 0,
     shape: "gaussian",

@@ -39,6 +39,12 @@ export interface Signal {
   fresh?: { width: number; kappa: number };
   /** whether the tensor is roughly zero-mean Gaussian (the input assumption of the activation rules) */
   gaussian: boolean;
+  /**
+   * the part of q that every sample of a batch shares: the square of each feature's mean over the batch, averaged
+   * over features (a ReLU output's positive mean, passed on by the next weights). Batch norm removes it, which is
+   * where its gradient growth comes from (Yang et al. 2019). Absent: the elementwise mean², the usual case.
+   */
+  shared?: number;
 }
 
 /** The backward moments of one gradient tensor. */

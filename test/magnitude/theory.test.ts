@@ -124,6 +124,30 @@ describe("backward second moments", () => {
   });
 });
 
+describe("batch norm in a plain ReLU network", () => {
+  test("the gradient's squared norm grows by π/(π−1) ≈ 1.4669422 per dense → batch-norm → ReLU layer (Yang et al. 2019; check 29)", () => {
+    const layers: LayerSpec[] = [];
+    for (let i = 0; i < 20; i++) layers.push(dense(`d${i}`, 256, he), { family: "batch-norm", name: `bn${i}`, path: ["bn", i], gain: 1, epsilon: 0 }, act(`a${i}`));
+    const p = run(makeSpec([...layers, dense("out", 1, lecun)], { input: features(256) }));
+    for (let i = 1; i < 19; i++) {
+      const ratio = meanSquare(tensor(p, `a${i}/activation-gradient`)) / meanSquare(tensor(p, `a${i + 1}/activation-gradient`));
+      expect(ratio).toBeCloseTo(Math.PI / (Math.PI - 1), 12);
+    }
+    expect(Math.PI / (Math.PI - 1)).toBeCloseTo(1.4669422, 6);
+    // the forward pass stays normalised: batch norm divides by the batch variance 1 − 1/π of a ReLU-fed dense output
+    expect(meanSquare(tensor(p, "bn10/activation"))).toBeCloseTo(1, 12);
+    expect(meanSquare(tensor(p, "d10/pre-activation"))).toBeCloseTo(1, 12);
+  });
+
+  test("layer norm does not remove the per-feature batch mean, so the same network keeps its gradient (contrast)", () => {
+    const layers: LayerSpec[] = [];
+    for (let i = 0; i < 10; i++) layers.push(dense(`d${i}`, 256, he), { family: "layer-norm", name: `ln${i}`, path: ["ln", i], gain: 1, epsilon: 0 }, act(`a${i}`));
+    const p = run(makeSpec([...layers, dense("out", 1, lecun)], { input: features(256) }));
+    const ratio = meanSquare(tensor(p, "a3/activation-gradient")) / meanSquare(tensor(p, "a4/activation-gradient"));
+    expect(ratio).toBeCloseTo(1, 12);
+  });
+});
+
 describe("finite-width spread", () => {
   test("ReLU log-variance of the squared norm is 5·Σ1/n, so log2Spread = √(5L/n)/(2 ln 2) (Hanin & Nica 2019 form; SCIENCE.md §2.6, check 27)", () => {
     const width = 200;

@@ -85,7 +85,9 @@ export function pointwiseForward(
   let logVar = input.logVar;
   if (input.fresh !== undefined) logVar = Math.max(logVar + (kappa.forward - input.fresh.kappa) / input.fresh.width, 0);
   const { shape, bound } = outputShape(name, input);
-  const output: Signal = { q, mean, zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
+  // per-feature batch means: φ's mean, plus the input's own shared part passed on to first order through E[φ']
+  const shared = mean * mean + (input.shared === undefined ? 0 : m.derivativeMean * m.derivativeMean * input.shared);
+  const output: Signal = { q, mean, shared: Math.min(shared, q), zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
   if (bound !== undefined) output.bound = bound;
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;

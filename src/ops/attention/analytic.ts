@@ -12,7 +12,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { AttentionLayer } from "../../spec/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, sumLogVar, weightOf } from "../common.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, sharedOf, sumLogVar, weightOf } from "../common.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -136,7 +136,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const project = (name: string): { signal: Signal; gain: number } => {
       const w = weightOf(layer, name);
       const gain = ctx.variance(w) * w.fanIn;
-      return { signal: linearOutput(gain * input.q, input.logVar, inner), gain };
+      return { signal: linearOutput(gain * input.q, input.logVar, inner, gain * sharedOf(input)), gain };
     };
     const query = project("query");
     const key = project("key");
@@ -163,10 +163,20 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       logVar: 0,
       gaussian: false,
     };
-    const heads: Signal = { q: value.signal.q * rows.sumSquares, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: value.signal.logVar, gaussian: true };
+    // averaging keeps what all positions share and shrinks the rest by Σ_j p_j²
+    const valueShared = value.signal.shared ?? 0;
+    const heads: Signal = {
+      q: (value.signal.q - valueShared) * rows.sumSquares + valueShared,
+      shared: valueShared,
+      mean: 0,
+      zeroFraction: 0,
+      shape: "gaussian",
+      logVar: value.signal.logVar,
+      gaussian: true,
+    };
     const wo = weightOf(layer, "output");
     const outGain = ctx.variance(wo) * wo.fanIn;
-    const output = linearOutput(outGain * heads.q, heads.logVar, D);
+    const output = linearOutput(outGain * heads.q, heads.logVar, D, outGain * valueShared);
 
     const qFactor = (gain: number, name: string): Factor => factor(gain, () => `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
     const logitFactor = factor(

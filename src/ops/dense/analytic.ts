@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, maybeWeight, weightOf } from "../common.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, maybeWeight, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -35,7 +35,8 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const gain = variance * w.fanIn;
   const q = gain * input.q + biasVariance;
   const outWidth = w.shape[0] ?? 1;
-  const output = linearOutput(q, input.logVar, outWidth);
+  // each output feature's mean over the batch is Σ_i W_ji·(mean of input i): its square averages to fan_in·var_w·shared_in
+  const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
   const ratio = input.q > 0 ? q / input.q : 0;
   const rule = (): string => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);

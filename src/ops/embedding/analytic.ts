@@ -20,6 +20,7 @@ export const embeddingRule: AnalyticRule<null> = {
     const zero = table.distribution === "zeros";
     const output: Signal = {
       q,
+      shared: 0,
       mean: 0,
       zeroFraction: zero ? 1 : 0,
       shape: table.distribution === "uniform" ? "uniform" : "gaussian",

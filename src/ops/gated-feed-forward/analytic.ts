@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { GatedFeedForwardLayer } from "../../spec/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, weightOf } from "../common.js";
+import { SOURCES, factor, fmt, linearGradient, linearOutput, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 
@@ -46,12 +46,13 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const wd = weightOf(layer, "down");
     const gateGain = ctx.variance(wg) * wg.fanIn;
     const upGain = ctx.variance(wu) * wu.fanIn;
-    const gate = linearOutput(gateGain * input.q, input.logVar, spec.hidden);
-    const up = linearOutput(upGain * input.q, input.logVar, spec.hidden);
+    const gate = linearOutput(gateGain * input.q, input.logVar, spec.hidden, gateGain * sharedOf(input));
+    const up = linearOutput(upGain * input.q, input.logVar, spec.hidden, upGain * sharedOf(input));
     const m = ctx.moments(spec.activation, gate.q, slopeOf(spec));
     const kappa = activationKappa(m);
     const product: Signal = {
       q: m.second * up.q,
+      shared: m.mean * m.mean * (up.shared ?? 0),
       mean: 0,
       zeroFraction: m.zeroFraction,
       shape: "gaussian",
@@ -61,7 +62,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       gaussian: false,
     };
     const downGain = ctx.variance(wd) * wd.fanIn;
-    const output = linearOutput(downGain * product.q, product.logVar, D);
+    const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
     const gateFactor = factor(gateGain, () => `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
     const upFactor = factor(upGain, () => `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
     const productFactor = factor(m.second, () => `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);

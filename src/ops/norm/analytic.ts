@@ -8,7 +8,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
-import { factor, fmt, maybeWeight, weightOf } from "../common.js";
+import { factor, fmt, maybeWeight, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -39,14 +39,26 @@ export const normRule: AnalyticRule<NormStash> = {
     const bias = maybeWeight(layer, "bias");
     const biasVariance = bias === undefined ? 0 : ctx.variance(bias);
     const centred = layer.family !== "rms-norm";
-    const variance = centred ? Math.max(input.q - input.mean * input.mean, 0) : input.q;
+    // layer norm centres each sample over its features; batch norm centres each feature over the batch, removing the
+    // shared part (the per-feature batch mean²), which a ReLU's positive mean puts there (Yang et al. 2019)
+    const removed = layer.family === "batch-norm" ? sharedOf(input) : centred ? input.mean * input.mean : 0;
+    const variance = Math.max(input.q - removed, 0);
     const denominator = variance + spec.epsilon;
     const normalisedSecond = denominator > 0 ? variance / denominator : 0;
     const q = gainSquared * normalisedSecond + biasVariance;
     const output: Signal = centred
-      ? { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true }
+      ? {
+          q,
+          mean: 0,
+          shared: layer.family === "batch-norm" ? biasVariance : Math.min(q, Math.max(sharedOf(input) - input.mean * input.mean, 0) * (gainSquared / denominator) + biasVariance),
+          zeroFraction: 0,
+          shape: "gaussian",
+          logVar: 0,
+          gaussian: true,
+        }
       : {
           q,
+          shared: sharedOf(input) * (gainSquared / denominator),
           mean: input.mean * Math.sqrt(gainSquared / denominator),
           zeroFraction: input.zeroFraction,
           shape: input.shape,

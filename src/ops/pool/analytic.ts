@@ -9,7 +9,7 @@
 import { sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { factor, fmt } from "../common.js";
+import { factor, fmt, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k independent elements (variance ÷ k; approximation)";
@@ -64,7 +64,9 @@ export const poolRule: AnalyticRule<null> = {
     let rule: string;
     let source: string;
     if (layer.family === "average-pool") {
-      q = variance / k + input.mean * input.mean;
+      // neighbours share each channel's batch mean; only the rest averages down
+      const shared = Math.min(sharedOf(input), input.q);
+      q = (input.q - shared) / k + shared;
       zeroFraction = Math.pow(input.zeroFraction, k);
       rule = `average of ${k}: variance ÷ ${k}`;
       source = AVERAGE_SOURCE;
@@ -84,7 +86,15 @@ export const poolRule: AnalyticRule<null> = {
       rule = `max of ${k}: E[M²] of ${k} Gaussians`;
       source = MAX_SOURCE;
     }
-    const output: Signal = { q, mean, zeroFraction, shape: "gaussian", logVar: input.logVar, gaussian: false };
+    const output: Signal = {
+      q,
+      mean,
+      shared: layer.family === "average-pool" ? Math.min(sharedOf(input), q) : mean * mean,
+      zeroFraction,
+      shape: "gaussian",
+      logVar: input.logVar,
+      gaussian: false,
+    };
     return {
       output,
       factors: [factor(input.q > 0 ? q / input.q : 0, () => `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)],

@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
-import { factor, fmt, sumLogVar } from "../common.js";
+import { factor, fmt, sharedOf, sumLogVar } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -36,6 +36,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const shared = branch.branchResets === true ? 0 : 1;
     const output: Signal = {
       q,
+      shared: Math.min(q, sharedOf(input) + alpha * alpha * sharedOf(f) + 2 * alpha * input.mean * f.mean),
       mean: input.mean + alpha * f.mean,
       zeroFraction: input.zeroFraction * f.zeroFraction,
       shape: "gaussian",
