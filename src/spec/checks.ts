@@ -5,6 +5,7 @@
  */
 import { didYouMean } from "./issues.js";
 import type { RawIssue } from "./messages.js";
+import { DEFAULT_PLAN_NAME } from "./normalize.js";
 import { inputKindCount, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./schema.js";
 
 type Path = (string | number)[];
@@ -351,6 +352,12 @@ function checkPlans(root: Record<string, unknown>, found: Found): void {
           path: ["precision", "name"],
           atKey: false,
           message: `plans[${names.get(name)}] is also named ${JSON.stringify(name)}: rename one, or write precision: ${name}`,
+        });
+      } else if (name === undefined && names.has(DEFAULT_PLAN_NAME)) {
+        found.errors.push({
+          path: ["plans", names.get(DEFAULT_PLAN_NAME)!, "name"],
+          atKey: false,
+          message: `"${DEFAULT_PLAN_NAME}" is the name precision takes when it gives none: rename this plan or name precision`,
         });
       }
     }
