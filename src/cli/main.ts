@@ -10,7 +10,6 @@ export function buildProgram(): Command {
         "flush to zero or overflow, and which loss scale to use. Predictions are estimates; confirm with a short run.",
     )
     .version(VERSION, "-V, --version")
-    .showHelpAfterError()
     .exitOverride();
   for (const register of commands) register(program);
   return program;

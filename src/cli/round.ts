@@ -1,3 +1,4 @@
+import { createRandom } from "../numeric/index.js";
 import { createInterface } from "node:readline";
 import { Option } from "commander";
 import {
@@ -47,16 +48,10 @@ export function parseValue(text: string): { value: number } | { error: string } 
   return { error: `"${text}" is not a number; ${ACCEPTED_VALUES}` };
 }
 
-/** A small seeded uniform source on [0, 1) (mulberry32) for --rounding stochastic. */
+/** A seeded uniform source on [0, 1) for --rounding stochastic (the shared generator of src/numeric). */
 function seededUniform(seed: number): () => number {
-  let state = seed >>> 0;
-  return () => {
-    state = (state + 0x6d2b79f5) >>> 0;
-    let t = state;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
+  const source = createRandom(seed);
+  return () => source.next();
 }
 
 /** A number for the text table: shortest round-trip form, with the sign of zero kept. */
