@@ -103,6 +103,8 @@ export function batchCountLine(rows: readonly BatchRow[]): string {
 function errorLine(row: Extract<BatchRow, { status: "error" }>): string {
   const variant = row.variant ? ` [${row.variant}]` : "";
   const kind = row.error.kind === "internal" ? "internal error: " : "";
+  // messages name their file (with the line and column) already; say it once
+  if (row.error.message.startsWith(row.file)) return `${kind}${row.error.message}${variant}`;
   return `${row.file}${variant}: ${kind}${row.error.message}`;
 }
 

@@ -157,6 +157,13 @@ function bandChartSvg(
         body += `<rect class="range-subnormal" fill="url(#${id}-hatch)" x="${n(x(range.smallestLog2))}" y="${n(y + 1)}" width="${n(Math.max(0, x(range.minNormalLog2) - x(range.smallestLog2)))}" height="${n(ROW - 2)}"/>`;
         body += `<rect class="range-normal" x="${n(x(range.minNormalLog2))}" y="${n(y + 1)}" width="${n(Math.max(0, x(range.maxLog2) - x(range.minNormalLog2)))}" height="${n(ROW - 2)}"/>`;
       }
+      if (!Number.isFinite(t.rmsLog2)) {
+        // an all-zero tensor (a bias at initialisation): nothing to place on the axis
+        body += `<text class="zero-note" x="${n(PLOT_LEFT + 6)}" y="${n(mid + 4)}">all zero<title>${e(`${t.layer} · ${t.role}: every element is zero`)}</title></text>`;
+        body += `<text class="role" x="${n(LABEL_WIDTH)}" y="${n(mid + 4)}" text-anchor="end">${e(truncateLabel(`${t.role} · ${t.format}`, 42))}</text>`;
+        y += ROW;
+        continue;
+      }
       const low = finiteOr(t.lowLog2, domain[0]);
       const high = finiteOr(t.highLog2, domain[1]);
       const x0 = x(Math.min(low, high));
@@ -437,6 +444,7 @@ svg .step-up rect { fill: ${PALETTE.up}; }
 svg .step-down rect { fill: ${PALETTE.down}; }
 svg .step-total rect { fill: ${PALETTE.ink}; }
 svg .step-value { fill: ${PALETTE.quiet}; font-size: 10px; }
+svg .zero-note { fill: ${PALETTE.quiet}; font-style: italic; }
 svg .zero { stroke: ${PALETTE.ink}; stroke-width: 1; }
 .legend { list-style: none; display: flex; flex-wrap: wrap; gap: 0.4rem 1.2rem; padding: 0; margin: 0.6rem 0; font-size: 0.85rem; }
 .swatch { display: inline-block; width: 1.1em; height: 0.8em; margin-right: 0.35em; vertical-align: -0.05em; border-radius: 2px; }

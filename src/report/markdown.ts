@@ -13,8 +13,9 @@ export interface MarkdownColumn {
   align?: "left" | "right" | "center";
 }
 
-// ASCII punctuation that could start emphasis, code, links, headings, lists or tables.
-const MARKDOWN_PUNCTUATION = /[\\`*_[\]{}()#+!|~]/g;
+// ASCII punctuation that could start emphasis, code, links, headings, lists or tables; "(" and "!"
+// need no escape once "[" and "]" have one (a link or image needs both).
+const MARKDOWN_PUNCTUATION = /[\\`*_[\]#+|~]/g;
 
 /**
  * Escape plain text so GitHub Markdown shows it literally, inside a table cell or a paragraph:

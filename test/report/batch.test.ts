@@ -112,7 +112,7 @@ describe("renderBatchText", () => {
     expect(lines[5]).toMatch(/flushed energy 12\.5%$/);
   });
   test("lists errors with positions and ends with counts and the estimate note", () => {
-    expect(text).toContain("could not be evaluated\n  sweep/broken.yaml: sweep/broken.yaml:4:10: training.batch");
+    expect(text).toContain("could not be evaluated\n  sweep/broken.yaml:4:10: training.batch");
     expect(text).toContain("4 specs: 1 fit, 1 at risk, 1 fail, 1 could not be evaluated. Predictions are estimates");
   });
   test("has no escapes without colour, and keeps alignment with colour", () => {
@@ -161,7 +161,7 @@ describe("renderBatchMarkdown", () => {
     expect(md.startsWith("**headroom batch**: 4 specs: 1 fit, 1 at risk, 1 fail, 1 could not be evaluated\n\n| spec | verdict |")).toBe(true);
     expect(md).toContain("| sweep/wide, \"odd\".yaml | **at risk** |");
     expect(md).toContain("_not evaluated_");
-    expect(md).toContain("- sweep/broken.yaml: sweep/broken.yaml:4:10: training.batch");
+    expect(md).toContain("- sweep/broken.yaml:4:10: training.batch");
     expect(md).toContain("_Predictions are estimates");
   });
 });

@@ -38,7 +38,8 @@ describe("renderHtmlReport", () => {
     expect(html).toContain('<svg class="chart ledger-chart"');
     expect(html).toContain("<figcaption>Forward pass</figcaption>");
     expect(html).toContain("<figcaption>Backward pass</figcaption>");
-    expect(html.match(/class="range-subnormal"/g)?.length).toBe(6);
+    expect(html.match(/class="range-subnormal"/g)?.length).toBe(7);
+    expect(html).toContain(">all zero<title>fc2 · weight:bias: every element is zero</title>");
     expect(html).toContain("not guarantees");
   });
 

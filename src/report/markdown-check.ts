@@ -1,0 +1,67 @@
+/**
+ * `check --md`: a check result as GitHub Markdown for a CI comment: the verdict, a table of formats,
+ * the worst findings and the loss scale. Pure.
+ */
+import { escapeMarkdown, markdownCode, markdownTable } from "./markdown.js";
+import { formatRiskValue, lossScaleCells, verdictWords } from "./batch.js";
+import type { CheckResult } from "../risk/index.js";
+import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
+
+/** Options of {@link renderCheckMarkdown}. */
+export interface CheckMarkdownOptions {
+  /** the variant's name, shown in the heading (check --vary) */
+  variant?: string | null;
+  /** findings listed (default 10) */
+  findings?: number;
+}
+
+const ENTRY_WORDS: Record<string, string> = {
+  activations: "activations",
+  weights: "weights",
+  gradients: "gradients",
+  optimizerStates: "optimizer states",
+  accumulate: "accumulation",
+};
+
+const EMPHASIS = { fits: "fits", "at-risk": "**at risk**", fails: "**fails**" } as const;
+
+/** A check result as Markdown; every name from the spec is escaped. */
+export function renderCheckMarkdown(result: CheckResult, options: CheckMarkdownOptions = {}): string {
+  const limit = options.findings ?? 10;
+  const variant = options.variant ? ` (${escapeMarkdown(options.variant)})` : "";
+  let out = `### headroom check: ${escapeMarkdown(result.spec.name)}${variant}: ${EMPHASIS[result.verdict]}\n\n`;
+  out += `Spec ${markdownCode(result.spec.source)}, precision plan ${markdownCode(result.plan.name)}.\n\n`;
+  out += markdownTable(
+    [{ title: "format" }, { title: "holds" }, { title: "verdict" }, { title: "why" }],
+    result.formats.map((f) => [
+      f.format,
+      f.holds.map((entry) => ENTRY_WORDS[entry] ?? entry).join(", "),
+      { markdown: EMPHASIS[f.verdict] },
+      f.reasons.length > 0 ? f.reasons.join("\n") : "",
+    ]),
+  );
+  const findings = findingsWorstFirst(result);
+  if (findings.length > 0) {
+    out += `\nWorst findings (${Math.min(limit, findings.length)} of ${findings.length}):\n\n`;
+    out += markdownTable(
+      [{ title: "tensor or operation" }, { title: "format" }, { title: "verdict" }, { title: "what" }, { title: "how much", align: "right" }],
+      findings.slice(0, limit).map((f) => [
+        f.subject,
+        f.format,
+        verdictWords(f.severity),
+        FINDING_WORDS[f.kind].label,
+        formatRiskValue({ value: f.value, measure: FINDING_WORDS[f.kind].measure }),
+      ]),
+    );
+  }
+  const scale = lossScaleOf(result);
+  const cells = lossScaleCells(scale);
+  out +=
+    scale.status === "window"
+      ? `\nLoss scale: pick ${escapeMarkdown(cells.pick)}, window ${escapeMarkdown(cells.window)}.\n`
+      : scale.status === "empty"
+        ? `\nLoss scale: no static scale serves the whole horizon. ${escapeMarkdown(scale.reason)}\n`
+        : `\nLoss scale: _not evaluated_.\n`;
+  out += `\n_${escapeMarkdown(result.caution)}_\n`;
+  return out;
+}

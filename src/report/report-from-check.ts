@@ -1,0 +1,115 @@
+/**
+ * A check result as the HTML report's model: bands on a log2 axis, the ranges of the planned formats,
+ * the ledger of the worst tensor, the findings worst first. Pure.
+ */
+import { FORMATS } from "../formats/index.js";
+import type { FormatName } from "../formats/names.js";
+import type { CheckResult, TensorCheck } from "../risk/index.js";
+import type { ReportFormatRange, ReportModel, ReportTensorBand } from "./report-model.js";
+import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
+
+const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
+
+const ENTRY_WORDS: Record<string, string> = {
+  activations: "activations",
+  weights: "weights",
+  gradients: "gradients",
+  optimizerStates: "optimizer states",
+  accumulate: "accumulation",
+};
+
+function log2(value: number): number {
+  return value > 0 ? Math.log2(value) : -Infinity;
+}
+
+/**
+ * A planned format's range as the check judges it: subnormals count as kept unless the plan flushes
+ * them or the format is modelled flush-to-zero (bfloat16 on much hardware; SCIENCE.md §1.2).
+ */
+export function formatRange(name: FormatName, flushSubnormals: boolean, roles: string[]): ReportFormatRange {
+  const format = FORMATS[name];
+  const flushes = flushSubnormals || format.subnormalsOftenFlushed;
+  return {
+    format: name,
+    maxLog2: Math.log2(format.maxFinite),
+    minNormalLog2: Math.log2(format.minNormal),
+    smallestLog2: Math.log2(flushes ? format.minNormal : format.minSubnormal),
+    roles,
+  };
+}
+
+/** The tensor's name within its layer, e.g. "weight", "weight:bias", "activation gradient". */
+function tensorLabel(tensor: TensorCheck): string {
+  const prefix = `${tensor.layer}/`;
+  const own = tensor.id.startsWith(prefix) ? tensor.id.slice(prefix.length) : tensor.role;
+  return own.replaceAll("-", " ");
+}
+
+function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
+  const format = result.plan[tensor.slot];
+  // a profile that is all zeros (a bias at initialisation) has no magnitudes to show
+  const profiles = [tensor.statistics.start, tensor.statistics.end].filter((p) => p.rms > 0);
+  const start = profiles[0] ?? tensor.statistics.start;
+  const end = profiles[1] ?? start;
+  const risk = tensor.risks.find((r) => r.format === format);
+  const worst = risk ? [...risk.findings].sort((a, b) => (a.severity === b.severity ? 0 : a.severity === "fails" ? -1 : 1))[0] : undefined;
+  return {
+    id: tensor.id,
+    layer: tensor.layer,
+    layerIndex: tensor.layerIndex,
+    role: tensorLabel(tensor),
+    pass: FORWARD_ROLES.has(tensor.role) ? "forward" : "backward",
+    format,
+    lowLog2: log2(Math.min(start.low, end.low)),
+    rmsLog2: log2(start.rms),
+    highLog2: log2(Math.max(start.max, end.max)),
+    verdict: risk?.verdict ?? tensor.verdict,
+    note: worst?.sentence ?? "",
+  };
+}
+
+/** Options of {@link reportModel}. */
+export interface ReportModelOptions {
+  /** the version printed in the footer */
+  version: string;
+}
+
+/** Turn a check result into what the HTML report shows. */
+export function reportModel(result: CheckResult, options: ReportModelOptions): ReportModel {
+  const findings = findingsWorstFirst(result);
+  const planned = result.formats.filter((f) => f.planned);
+  const shown = planned.length > 0 ? planned : result.formats;
+  const worstTensor = findings.find((f) => f.source === "tensor");
+  const ledgerTensor = worstTensor ? result.tensors.find((t) => t.id === worstTensor.subject) : undefined;
+  const reasons = result.formats.flatMap((f) => f.reasons);
+  return {
+    title: result.spec.name,
+    description: result.spec.description,
+    source: result.spec.source,
+    plan: result.plan.name,
+    verdict: result.verdict,
+    reasons: [...new Set(reasons)],
+    formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h) })),
+    ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => ENTRY_WORDS[h] ?? h))),
+    tensors: result.tensors.map((t) => band(result, t)),
+    lossScale: { summary: lossScaleOf(result), notes: [] },
+    ledger: ledgerTensor?.ledger
+      ? {
+          subject: ledgerTensor.id,
+          rmsLog2: log2(ledgerTensor.start.rms),
+          steps: ledgerTensor.ledger.map((entry) => ({ layer: entry.layer, rule: entry.rule, log2Factor: entry.log2Factor, source: entry.source })),
+        }
+      : null,
+    findings: findings.map((f) => ({
+      subject: f.subject,
+      format: f.format,
+      verdict: f.severity,
+      label: FINDING_WORDS[f.kind].label,
+      value: f.value,
+      measure: FINDING_WORDS[f.kind].measure,
+      sentence: f.sentence,
+    })),
+    assumptions: [...result.assumptions, result.caution],
+    version: options.version,
+  };
+}

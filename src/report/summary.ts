@@ -1,0 +1,107 @@
+/**
+ * A check result read for rows and reports: a short label and a measure for each kind of finding, the
+ * findings worst first, the loss-scale window when the check has one, and the one-row summary a batch
+ * shows. Pure; types only from the risk and batch modules.
+ */
+import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
+import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
+
+/** How each kind of finding is named in a row, and what its number measures. */
+export const FINDING_WORDS = {
+  overflow: { label: "overflow", measure: "probability" },
+  saturation: { label: "saturation", measure: "probability" },
+  "little-headroom": { label: "headroom", measure: "binades" },
+  "gradient-energy-flushed": { label: "flushed energy", measure: "share" },
+  "flushed-values": { label: "flushed", measure: "share" },
+  "subnormal-values": { label: "subnormal", measure: "share" },
+  "softmax-exp-overflow": { label: "softmax exp overflow", measure: "probability" },
+  "softmax-sum-overflow": { label: "softmax sum overflow", measure: "probability" },
+  "norm-sum-overflow": { label: "norm sum overflow", measure: "probability" },
+  "accumulation-error": { label: "accumulation error", measure: "relative-error" },
+  "accumulation-overflow": { label: "partial sum overflow", measure: "probability" },
+  "loss-value-overflow": { label: "loss overflow", measure: "probability" },
+  "gradient-sum-overflow": { label: "gradient sum overflow", measure: "probability" },
+  "gradient-sum-flush": { label: "gradient sum flushed", measure: "share" },
+  "optimizer-epsilon-flushed": { label: "zero second moments", measure: "count" },
+  "second-moment-flushed": { label: "second moment flushed", measure: "share" },
+} as const satisfies Record<FindingKind, { label: string; measure: RiskMeasure }>;
+
+const SEVERITY = { fails: 0, "at-risk": 1 } as const;
+
+// kinds whose number is better when larger (binades of headroom); the others are worse when larger
+const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set<FindingKind>(["little-headroom"]);
+
+/**
+ * Order findings worst first: fails before at risk, stored tensors before operations (the row names
+ * a tensor), then the catalogue's order of kinds, then the number (worse first).
+ */
+export function compareFindings(a: Finding, b: Finding): number {
+  const kinds = Object.keys(FINDING_WORDS);
+  return (
+    SEVERITY[a.severity] - SEVERITY[b.severity] ||
+    (a.source === b.source ? 0 : a.source === "tensor" ? -1 : 1) ||
+    kinds.indexOf(a.kind) - kinds.indexOf(b.kind) ||
+    (LARGER_IS_BETTER.has(a.kind) ? a.value - b.value : b.value - a.value) ||
+    (a.subject < b.subject ? -1 : a.subject > b.subject ? 1 : 0)
+  );
+}
+
+/** Every finding of a check, worst first (see {@link compareFindings}). */
+export function findingsWorstFirst(result: CheckResult): Finding[] {
+  return result.formats.flatMap((format) => format.findings).sort(compareFindings);
+}
+
+/** The worst finding as a row cell, or null when the check found nothing. */
+export function worstOf(result: CheckResult): WorstSummary | null {
+  const worst = findingsWorstFirst(result)[0];
+  if (!worst) return null;
+  const words = FINDING_WORDS[worst.kind];
+  return {
+    subject: worst.subject,
+    format: worst.format,
+    verdict: worst.severity,
+    kind: worst.kind,
+    label: words.label,
+    value: worst.value,
+    measure: words.measure,
+  };
+}
+
+/** The shape of a loss-scale window, as the scale module reports it (exponents of two). */
+interface WindowLike {
+  empty: boolean;
+  lowestLog2: number | null;
+  highestLog2: number | null;
+  pickLog2: number | null;
+  reason?: string;
+}
+
+function isWindow(value: unknown): value is WindowLike {
+  if (typeof value !== "object" || value === null) return false;
+  const w = value as Record<string, unknown>;
+  return typeof w["empty"] === "boolean" && "pickLog2" in w && "lowestLog2" in w && "highestLog2" in w;
+}
+
+/**
+ * The loss-scale window of a check, when the check worked one out; "not evaluated" otherwise
+ * (older results, or plans with no gradient in a reduced format).
+ */
+export function lossScaleOf(result: CheckResult): LossScaleSummary {
+  const window = (result as unknown as { lossScaleWindow?: unknown }).lossScaleWindow;
+  if (!isWindow(window)) return { status: "not-evaluated" };
+  if (window.empty || window.pickLog2 === null || window.lowestLog2 === null || window.highestLog2 === null) {
+    return { status: "empty", reason: window.reason ?? "no power of two keeps every gradient from both overflowing and flushing" };
+  }
+  return { status: "window", pickLog2: window.pickLog2, lowLog2: window.lowestLog2, highLog2: window.highestLog2 };
+}
+
+/** One batch row's worth of a check result. */
+export function summarizeCheck(result: CheckResult): SpecSummary {
+  return {
+    name: result.spec.name,
+    verdict: result.verdict,
+    formats: result.formats.map((format) => ({ format: format.format, verdict: format.verdict })),
+    lossScale: lossScaleOf(result),
+    worst: worstOf(result),
+  };
+}
