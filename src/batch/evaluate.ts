@@ -22,8 +22,8 @@ export type TaskResult = { status: "ok"; summary: SpecSummary } | { status: "err
 export interface EvaluateHooks {
   /** the text of a spec file; a thrown error with a `code` (ENOENT…) becomes an input error */
   readText(file: string): Promise<string> | string;
-  /** the spec's JSON Schema, so --vary can add keys the file leaves to their defaults */
-  schema?: Record<string, unknown>;
+  /** the spec's JSON Schema (or a function giving it, called only when a task has a variant), so --vary can add keys the file leaves to their defaults */
+  schema?: Record<string, unknown> | (() => Record<string, unknown>);
   /** judge a valid spec */
   judge(spec: NetworkSpec): Promise<SpecSummary> | SpecSummary;
 }
@@ -99,7 +99,8 @@ export async function evaluateTask(task: SpecTask, hooks: EvaluateHooks): Promis
   let originalLine = (line: number): number => line;
   if (task.variant) {
     try {
-      const varied = varyText(text, task.variant, hooks.schema);
+      const schema = typeof hooks.schema === "function" ? hooks.schema() : hooks.schema;
+      const varied = varyText(text, task.variant, schema);
       text = varied.text;
       originalLine = varied.originalLine;
     } catch (error) {

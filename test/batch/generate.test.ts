@@ -1,6 +1,6 @@
 import { describe, expect, test } from "vitest";
 import { parseSpec } from "../../src/spec/index.js";
-import { exampleSpecs, generatedSpec, tinySpec } from "./generate.js";
+import { exampleSpecs, generatedSpec, smallSpec, tinySpec } from "./generate.js";
 
 describe("generated specs (inputs of the batch tests and benchmark)", () => {
   test("each example, renamed and with a new batch size, is a valid spec", () => {
@@ -15,7 +15,11 @@ describe("generated specs (inputs of the batch tests and benchmark)", () => {
       }
     }
   });
-  test("the tiny spec is valid", () => {
+  test("the tiny spec and every small spec are valid", () => {
     expect(parseSpec(tinySpec("tiny"), "tiny.yaml").ok).toBe(true);
+    for (let i = 0; i < 84; i++) {
+      const result = parseSpec(smallSpec(i), `small-${i}.yaml`);
+      expect(result.ok, `small spec ${i}: ${result.ok ? "" : JSON.stringify(result.issues[0])}`).toBe(true);
+    }
   });
 });

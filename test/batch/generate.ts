@@ -46,13 +46,44 @@ export function generatedSpec(i: number, examples = exampleSpecs(), schema = spe
   return varyText(example.text, variant!, schema).text;
 }
 
-/** Write `count` generated specs into `dir` as spec-0000.yaml…; returns their paths in order. */
+/**
+ * A small classifier on invented sensor data, number i of a family: 1 to 3 hidden layers of 16 to 128
+ * units, one of three activations, one of three storage formats. Cheap to check, for tests that run many.
+ */
+export function smallSpec(i: number): string {
+  const widths = [16, 32, 64, 128];
+  const activations = ["relu", "gelu", "tanh"];
+  const formats = ["binary16", "bfloat16", "binary32"];
+  const hidden = 1 + (i % 3);
+  const lines = [
+    `name: small-${String(i).padStart(4, "0")}`,
+    "description: a small classifier of invented sensor readings",
+    `input: { features: ${8 * (1 + (i % 4))} }`,
+    "training:",
+    `  batch: ${[8, 32, 128][i % 3]}`,
+    `  loss: { kind: cross-entropy, classes: ${4 + (i % 7)} }`,
+    `precision: { activations: ${formats[i % 3]}, gradients: ${formats[(i + 1) % 3]} }`,
+    "layers:",
+  ];
+  for (let h = 0; h < hidden; h++) {
+    lines.push(`  - { type: dense, width: ${widths[(i + h) % 4]} }`, `  - ${activations[(i + h) % 3]}`);
+  }
+  lines.push(`  - { type: dense, width: ${4 + (i % 7)} }`, "");
+  return lines.join("\n");
+}
+
+/** Write `count` specs made by `make` into `dir` as spec-0000.yaml…; returns their paths in order. */
+export function writeSpecs(dir: string, count: number, make: (i: number) => string): string[] {
+  return Array.from({ length: count }, (_, i) => {
+    const path = join(dir, `spec-${String(i).padStart(4, "0")}.yaml`);
+    writeFileSync(path, make(i));
+    return path;
+  });
+}
+
+/** Write `count` specs varied from the examples into `dir` (see {@link generatedSpec}). */
 export function writeGeneratedSpecs(dir: string, count: number): string[] {
   const examples = exampleSpecs();
   const schema = specJsonSchema();
-  return Array.from({ length: count }, (_, i) => {
-    const path = join(dir, `spec-${String(i).padStart(4, "0")}.yaml`);
-    writeFileSync(path, generatedSpec(i, examples, schema));
-    return path;
-  });
+  return writeSpecs(dir, count, (i) => generatedSpec(i, examples, schema));
 }

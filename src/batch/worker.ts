@@ -1,0 +1,25 @@
+/**
+ * The batch worker thread: read, vary, validate and check one spec per message, answering with a
+ * row. Built to dist/batch/worker.js, which the pool starts (Node 20 cannot start a worker from .ts).
+ */
+import { readFileSync } from "node:fs";
+import { workerData } from "node:worker_threads";
+import { check } from "../check.js";
+import type { CheckOptions } from "../risk/index.js";
+import { specJsonSchema } from "../spec/index.js";
+import { evaluateTask } from "./evaluate.js";
+import { serveTasks } from "./serve.js";
+import { summarizeCheck } from "../report/summary.js";
+
+const options: CheckOptions = (workerData as { check?: CheckOptions } | null)?.check ?? {};
+let schema: Record<string, unknown> | undefined;
+// built on the first task with a variant: most batches have none, and building it takes a while
+const lazySchema = (): Record<string, unknown> => (schema ??= specJsonSchema());
+
+serveTasks((task: Parameters<typeof evaluateTask>[0]) =>
+  evaluateTask(task, {
+    readText: (file) => readFileSync(file, "utf8"),
+    schema: lazySchema,
+    judge: (spec) => summarizeCheck(check(spec, options)),
+  }),
+);
