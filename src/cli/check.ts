@@ -7,6 +7,8 @@ import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
 import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
 import type { RegisterCommand } from "./commands.js";
+import { checkVariants, varyOption } from "./batch.js";
+import { renderCheckMarkdown } from "../report/markdown-check.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 /** Options shared by `check` and `explain`. */
@@ -104,18 +106,31 @@ export const register: RegisterCommand = (program) => {
         "Predictions are estimates; confirm with a short run.",
     )
     .option("--all", "list every tensor and operation, not only those at risk")
-    .option("--json", "print the whole result as JSON (fields documented in README.md)");
-  addJudgeOptions(command).action(async (path: string, flags: JudgeFlags & { all?: boolean; json?: boolean }) => {
-    const result = await loadAndCheck(path, flags);
-    if (result === undefined) return;
-    const text = flags.json
-      ? renderCheckJson(result)
-      : renderCheckText(result, {
-          all: flags.all ?? false,
-          style: createStyle(colorEnabled(process.stdout, process.env)),
-          width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
-        });
-    process.stdout.write(text);
-    if (result.verdict === "fails") raiseExitCode(EXIT.findings);
+    .option("--json", "print the whole result as JSON (fields documented in README.md)")
+    .addOption(new Option("--md", "print Markdown for a CI comment").conflicts("json"))
+    .addOption(varyOption());
+  addJudgeOptions(command).action(async (path: string, flags: JudgeFlags & { all?: boolean; json?: boolean; md?: boolean; vary?: string[] }) => {
+    // --vary (see src/cli/batch.ts): one check per variant, each named by its values
+    const runs = flags.vary ? await checkVariants(path, flags.vary, flags) : [{ variant: null, result: await loadAndCheck(path, flags) }];
+    const texts: string[] = [];
+    for (const { variant, result } of runs) {
+      if (result === undefined) continue;
+      texts.push(
+        flags.md
+          ? renderCheckMarkdown(result, { variant })
+          : flags.json
+            ? renderCheckJson(result)
+            : (variant ? `variant ${variant}\n\n` : "") +
+              renderCheckText(result, {
+                all: flags.all ?? false,
+                style: createStyle(colorEnabled(process.stdout, process.env)),
+                width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+              }),
+      );
+      if (result.verdict === "fails") raiseExitCode(EXIT.findings);
+    }
+    if (flags.json && flags.vary) {
+      process.stdout.write(texts.length === 0 ? "[]\n" : `[\n${texts.map((text, i) => `{ "variant": ${JSON.stringify(runs[i]?.variant)}, "result": ${text.trimEnd()} }`).join(",\n")}\n]\n`);
+    } else process.stdout.write(texts.join("\n"));
   });
 };
