@@ -1,0 +1,110 @@
+import { execFileSync, spawnSync } from "node:child_process";
+import { cpSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { afterAll, beforeAll, describe, expect, test } from "vitest";
+import { ROOT } from "../helpers/run.js";
+import { check } from "../../src/check.js";
+import { loadSpec } from "../../src/spec/index.js";
+
+// The package as users get it: `npm pack` (after the build), installed by name into a fresh project,
+// then the README's script example (examples/at-risk.mjs) run against it. npm installs the
+// dependencies from its cache (--offline), so the test needs no network once they were installed once.
+let dir: string;
+let project: string;
+
+beforeAll(() => {
+  dir = mkdtempSync(join(tmpdir(), "headroom-pack-"));
+  execFileSync("npm", ["pack", "--ignore-scripts", "--pack-destination", dir], { cwd: ROOT, stdio: "pipe" });
+  const tarball = readdirSync(dir).find((name) => name.endsWith(".tgz"))!;
+  project = join(dir, "project");
+  cpSync(join(ROOT, "examples"), join(project, "examples"), { recursive: true });
+  writeFileSync(join(project, "package.json"), JSON.stringify({ name: "pack-check", private: true, type: "module" }));
+  execFileSync("npm", ["install", "--offline", "--no-audit", "--no-fund", "--ignore-scripts", "--loglevel=error", join(dir, tarball)], {
+    cwd: project,
+    stdio: "pipe",
+  });
+}, 240_000);
+afterAll(() => rmSync(dir, { recursive: true, force: true }));
+
+describe("the packed package, installed by name", () => {
+  test("the README's example prints exactly the specs at risk", async () => {
+    const specs = join(project, "node_modules", "headroom", "specs");
+    const run = spawnSync(process.execPath, ["examples/at-risk.mjs", specs], { cwd: project, encoding: "utf8" });
+    expect(run.stderr).toBe("");
+    // expected: the same check run from the source tree
+    const names = readdirSync(join(ROOT, "specs")).filter((n) => n.endsWith(".yaml")).sort();
+    const atRisk: string[] = [];
+    for (const name of names) {
+      const loaded = await loadSpec(join(ROOT, "specs", name));
+      if (!loaded.ok) throw new Error(`${name} is not valid`);
+      const result = check(loaded.spec);
+      if (result.verdict !== "fits") atRisk.push(`${result.spec.name}: ${result.verdict}`);
+    }
+    const printed = run.stdout.split("\n").filter((line) => /^\S+: (at-risk|fails) \(/.test(line)).map((line) => line.replace(/ \(.*$/, ""));
+    expect(printed).toEqual(atRisk);
+    expect(run.stdout).toContain(`${atRisk.length} of ${names.length} specs at risk or failing; 0 invalid.`);
+    expect(run.status).toBe(atRisk.length > 0 ? 1 : 0);
+  });
+
+  test("the README shows examples/at-risk.mjs as it is", () => {
+    const readme = readFileSync(join(ROOT, "README.md"), "utf8");
+    const example = readFileSync(join(ROOT, "examples", "at-risk.mjs"), "utf8");
+    expect(readme).toContain("```js\n" + example + "```\n");
+  });
+
+  test("exports and types resolve by the package name", () => {
+    const installed = JSON.parse(readFileSync(join(project, "node_modules", "headroom", "package.json"), "utf8"));
+    expect(installed.exports["."].types).toBe("./dist/index.d.ts");
+    const probe = [
+      'import { check, loadSpec, parseSpec, batchCheck, renderHtmlReport } from "headroom";',
+      "console.log([check, loadSpec, parseSpec, batchCheck, renderHtmlReport].map((f) => typeof f).join(','));",
+    ].join("\n");
+    writeFileSync(join(project, "probe.mjs"), probe);
+    const run = spawnSync(process.execPath, ["probe.mjs"], { cwd: project, encoding: "utf8" });
+    expect(run.stderr).toBe("");
+    expect(run.stdout.trim()).toBe("function,function,function,function,function");
+    const dts = readFileSync(join(project, "node_modules", "headroom", "dist", "index.d.ts"), "utf8");
+    expect(dts).toContain('export * from "./check.js"');
+    const checkDts = readFileSync(join(project, "node_modules", "headroom", "dist", "check.d.ts"), "utf8");
+    expect(checkDts).toMatch(/export declare function check\(spec: NetworkSpec, options\?: CheckOptions\): CheckResult;/);
+  });
+
+  test("a TypeScript consumer type-checks against the installed types (module resolution by name)", () => {
+    const probe = [
+      'import { check, parseSpec, batchCheck, type BatchRow, type CheckResult } from "headroom";',
+      'const parsed = parseSpec("name: x", "x.yaml");',
+      "if (parsed.ok) {",
+      "  const result: CheckResult = check(parsed.spec);",
+      '  const verdict: "fits" | "at-risk" | "fails" = result.verdict;',
+      "  void verdict;",
+      "} else {",
+      "  const line: number = parsed.issues[0]!.line;",
+      "  void line;",
+      "}",
+      'const rows: Promise<BatchRow[]> = batchCheck(["specs"], { workers: 1 });',
+      "void rows;",
+      "// @ts-expect-error a verdict is one of three words",
+      'const wrong: CheckResult["verdict"] = "maybe";',
+      "void wrong;",
+      "",
+    ].join("\n");
+    writeFileSync(join(project, "probe.ts"), probe);
+    const tsc = join(ROOT, "node_modules", ".bin", "tsc");
+    const run = spawnSync(
+      tsc,
+      ["--noEmit", "--strict", "--noUncheckedIndexedAccess", "--skipLibCheck", "--target", "es2022", "--module", "nodenext", "--moduleResolution", "nodenext", "probe.ts"],
+      { cwd: project, encoding: "utf8" },
+    );
+    expect(run.stdout + run.stderr).toBe("");
+    expect(run.status).toBe(0);
+  });
+
+  test("the installed binary runs a batch by the package's bin name", () => {
+    const bin = join(project, "node_modules", ".bin", "headroom");
+    const specs = join(project, "node_modules", "headroom", "specs");
+    const run = spawnSync(bin, ["batch", join(specs, "transformer-encoder.yaml"), "--jsonl"], { cwd: project, encoding: "utf8" });
+    expect(run.stderr).toBe("");
+    expect(JSON.parse(run.stdout.trim())).toMatchObject({ index: 0, status: "ok" });
+  });
+});

@@ -1,0 +1,27 @@
+import { readFileSync } from "node:fs";
+import { describe, expect, expectTypeOf, test } from "vitest";
+import * as api from "../../src/index.js";
+import type { BatchRow, CheckResult, NetworkSpec, SpecResult } from "../../src/index.js";
+
+// The package's public surface, as `import { ... } from "headroom"` sees it. The list is made by
+// test/api/generate-public-api.mjs from the build; a change to it is a change to the API.
+const EXPECTED: string[] = JSON.parse(readFileSync(new URL("./public-api.json", import.meta.url), "utf8"));
+
+describe("the public API (src/index.ts)", () => {
+  test("exports exactly the recorded names (regenerate with node test/api/generate-public-api.mjs after a deliberate change)", () => {
+    expect(Object.keys(api).sort()).toEqual(EXPECTED);
+  });
+  test("has the entry points the README documents", () => {
+    for (const name of ["check", "checkFile", "loadSpec", "parseSpec", "batchCheck", "runBatch", "expandInputs", "renderHtmlReport", "reportModel", "renderCheckMarkdown", "renderBatchCsv", "renderBatchJsonl", "summarizeCheck", "batchExitCode"]) {
+      expect(typeof (api as Record<string, unknown>)[name], name).toBe("function");
+    }
+  });
+  test("results are typed", () => {
+    expectTypeOf(api.check).parameter(0).toEqualTypeOf<NetworkSpec>();
+    expectTypeOf(api.check).returns.toEqualTypeOf<CheckResult>();
+    expectTypeOf(api.parseSpec).returns.toEqualTypeOf<SpecResult>();
+    expectTypeOf<CheckResult["verdict"]>().toEqualTypeOf<"fits" | "at-risk" | "fails">();
+    expectTypeOf(api.batchCheck).returns.toEqualTypeOf<Promise<BatchRow[]>>();
+    expectTypeOf<Extract<BatchRow, { status: "ok" }>["summary"]["verdict"]>().toEqualTypeOf<"fits" | "at-risk" | "fails">();
+  });
+});
