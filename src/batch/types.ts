@@ -15,7 +15,9 @@ export type LossScaleSummary =
   | { status: "window"; pickLog2: number; lowLog2: number; highLog2: number }
   /** no static scale serves the whole horizon; `reason` says why in plain words */
   | { status: "empty"; reason: string }
-  /** the check did not evaluate a loss scale (no gradient in a reduced format, or not computed) */
+  /** no loss scale is needed: gradients are held in a format with binary32's range (bfloat16, binary32) */
+  | { status: "not-needed" }
+  /** the check did not evaluate a loss scale */
   | { status: "not-evaluated" };
 
 /** The worst thing found in a spec: one tensor (or operation) in one format. */

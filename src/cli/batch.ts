@@ -4,7 +4,7 @@ import { evaluateTask } from "../batch/evaluate.js";
 import { nodePathHost } from "../batch/files.js";
 import { check } from "../check.js";
 import { summarizeCheck } from "../report/summary.js";
-import type { CheckOptions, CheckResult } from "../risk/index.js";
+import type { CheckAnswer, CheckAnswerOptions } from "../check.js";
 import { specJsonSchema } from "../spec/index.js";
 import { parseFormats } from "./check.js";
 import { expandInputs, pathsFromText } from "../batch/paths.js";
@@ -137,10 +137,10 @@ export async function checkVariants(
   path: string,
   options: readonly string[],
   flags: VariantFlags,
-  extra: CheckOptions = {},
-): Promise<{ variant: string; result: CheckResult }[]> {
+  extra: CheckAnswerOptions = {},
+): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
-  const checkOptions: CheckOptions = { ...extra };
+  const checkOptions: CheckAnswerOptions = { ...extra };
   const formats = parseFormats(flags.format);
   if (formats !== undefined) checkOptions.formats = formats;
   if (flags.lossScale !== undefined) {
@@ -149,9 +149,9 @@ export async function checkVariants(
     checkOptions.lossScale = value;
   }
   if (flags.plan !== undefined) checkOptions.plan = flags.plan;
-  const out: { variant: string; result: CheckResult }[] = [];
+  const out: { variant: string; result: CheckAnswer }[] = [];
   for (const variant of variants) {
-    let result: CheckResult | undefined;
+    let result: CheckAnswer | undefined;
     const outcome = await evaluateTask(
       { file: path, variant },
       {

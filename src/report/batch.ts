@@ -68,6 +68,8 @@ export function lossScaleCells(lossScale: LossScaleSummary): { pick: string; win
       };
     case "empty":
       return { pick: "none", window: "empty" };
+    case "not-needed":
+      return { pick: "not needed", window: "-" };
     case "not-evaluated":
       return { pick: "not evaluated", window: "not evaluated" };
   }

@@ -247,6 +247,9 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): 
   if (summary.status === "not-evaluated") {
     return `<p class="not-evaluated"><strong>Not evaluated.</strong> This check did not work out a loss-scale window for the plan.</p>${notesHtml}`;
   }
+  if (summary.status === "not-needed") {
+    return `<p>No loss scale is needed: the plan holds gradients in a format with binary32's exponent range, where they neither overflow nor flush at the predicted sizes.</p>${notesHtml}`;
+  }
   if (summary.status === "empty") {
     return `<p class="empty-window"><strong>No static loss scale serves the whole horizon.</strong> ${e(summary.reason)}</p>${notesHtml}`;
   }

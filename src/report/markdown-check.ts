@@ -4,6 +4,7 @@
  */
 import { escapeMarkdown, markdownCode, markdownTable } from "./markdown.js";
 import { formatRiskValue, lossScaleCells, verdictWords } from "./batch.js";
+import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
 
@@ -26,7 +27,7 @@ const ENTRY_WORDS: Record<string, string> = {
 const EMPHASIS = { fits: "fits", "at-risk": "**at risk**", fails: "**fails**" } as const;
 
 /** A check result as Markdown; every name from the spec is escaped. */
-export function renderCheckMarkdown(result: CheckResult, options: CheckMarkdownOptions = {}): string {
+export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: CheckMarkdownOptions = {}): string {
   const limit = options.findings ?? 10;
   const variant = options.variant ? ` (${escapeMarkdown(options.variant)})` : "";
   let out = `### headroom check: ${escapeMarkdown(result.spec.name)}${variant}: ${EMPHASIS[result.verdict]}\n\n`;
@@ -61,7 +62,9 @@ export function renderCheckMarkdown(result: CheckResult, options: CheckMarkdownO
       ? `\nLoss scale: pick ${escapeMarkdown(cells.pick)}, window ${escapeMarkdown(cells.window)}.\n`
       : scale.status === "empty"
         ? `\nLoss scale: no static scale serves the whole horizon. ${escapeMarkdown(scale.reason)}\n`
-        : `\nLoss scale: _not evaluated_.\n`;
+        : scale.status === "not-needed"
+          ? `\nLoss scale: not needed (gradients are held in a format with binary32's range).\n`
+          : `\nLoss scale: _not evaluated_.\n`;
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
 }

@@ -4,6 +4,7 @@
  */
 import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
+import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportModel, ReportTensorBand } from "./report-model.js";
 import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
@@ -75,13 +76,17 @@ export interface ReportModelOptions {
 }
 
 /** Turn a check result into what the HTML report shows. */
-export function reportModel(result: CheckResult, options: ReportModelOptions): ReportModel {
+export function reportModel(result: CheckResult | CheckAnswer, options: ReportModelOptions): ReportModel {
   const findings = findingsWorstFirst(result);
   const planned = result.formats.filter((f) => f.planned);
   const shown = planned.length > 0 ? planned : result.formats;
   const worstTensor = findings.find((f) => f.source === "tensor");
   const ledgerTensor = worstTensor ? result.tensors.find((t) => t.id === worstTensor.subject) : undefined;
-  const reasons = result.formats.flatMap((f) => f.reasons);
+  // the optimizer's reasons and an empty loss-scale window count in the verdict too
+  const optimizerReasons = "optimizer" in result && result.optimizer.verdict !== "fits" ? result.optimizer.reasons : [];
+  const scale = lossScaleOf(result);
+  const scaleReasons = scale.status === "empty" ? [scale.reason] : [];
+  const reasons = [...result.formats.flatMap((f) => f.reasons), ...scaleReasons, ...optimizerReasons];
   return {
     title: result.spec.name,
     description: result.spec.description,
@@ -92,7 +97,7 @@ export function reportModel(result: CheckResult, options: ReportModelOptions): R
     formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h) })),
     ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => ENTRY_WORDS[h] ?? h))),
     tensors: result.tensors.map((t) => band(result, t)),
-    lossScale: { summary: lossScaleOf(result), notes: [] },
+    lossScale: { summary: scale, notes: "lossScaleAnswer" in result && result.lossScaleAnswer ? result.lossScaleAnswer.sentences : [] },
     ledger: ledgerTensor?.ledger
       ? {
           subject: ledgerTensor.id,

@@ -4,6 +4,7 @@
  * shows. Pure; types only from the risk and batch modules.
  */
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
+import type { CheckAnswer } from "../check.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
 
 /** How each kind of finding is named in a row, and what its number measures. */
@@ -51,9 +52,26 @@ export function findingsWorstFirst(result: CheckResult): Finding[] {
   return result.formats.flatMap((format) => format.findings).sort(compareFindings);
 }
 
-/** The worst finding as a row cell, or null when the check found nothing. */
-export function worstOf(result: CheckResult): WorstSummary | null {
+const VERDICT_RANK = { fits: 0, "at-risk": 1, fails: 2 } as const;
+
+/**
+ * The worst finding as a row cell, or null when the check found nothing. When the optimizer check
+ * is worse than every finding (updates lost to rounding), its worst weight is the row's worst tensor.
+ */
+export function worstOf(result: CheckResult | CheckAnswer): WorstSummary | null {
   const worst = findingsWorstFirst(result)[0];
+  const optimizer = "optimizer" in result ? result.optimizer : undefined;
+  if (optimizer?.worst && optimizer.verdict !== "fits" && VERDICT_RANK[optimizer.verdict] > (worst ? VERDICT_RANK[worst.severity] : 0)) {
+    return {
+      subject: optimizer.worst.weight,
+      format: optimizer.updateFormat,
+      verdict: optimizer.verdict,
+      kind: "lost-updates",
+      label: "lost updates",
+      value: optimizer.worst.lostShare,
+      measure: "share",
+    };
+  }
   if (!worst) return null;
   const words = FINDING_WORDS[worst.kind];
   return {
@@ -67,36 +85,24 @@ export function worstOf(result: CheckResult): WorstSummary | null {
   };
 }
 
-/** The shape of a loss-scale window, as the scale module reports it (exponents of two). */
-interface WindowLike {
-  empty: boolean;
-  lowestLog2: number | null;
-  highestLog2: number | null;
-  pickLog2: number | null;
-  reason?: string;
-}
-
-function isWindow(value: unknown): value is WindowLike {
-  if (typeof value !== "object" || value === null) return false;
-  const w = value as Record<string, unknown>;
-  return typeof w["empty"] === "boolean" && "pickLog2" in w && "lowestLog2" in w && "highestLog2" in w;
-}
-
 /**
- * The loss-scale window of a check, when the check worked one out; "not evaluated" otherwise
- * (older results, or plans with no gradient in a reduced format).
+ * The loss-scale answer of a check in a row's terms: the window and its pick, an empty window with
+ * the reason, "not needed" when gradients are held in a format with binary32's range (bfloat16,
+ * binary32), or "not evaluated" for a result without an answer (a bare judgement).
  */
-export function lossScaleOf(result: CheckResult): LossScaleSummary {
-  const window = (result as unknown as { lossScaleWindow?: unknown }).lossScaleWindow;
-  if (!isWindow(window)) return { status: "not-evaluated" };
-  if (window.empty || window.pickLog2 === null || window.lowestLog2 === null || window.highestLog2 === null) {
-    return { status: "empty", reason: window.reason ?? "no power of two keeps every gradient from both overflowing and flushing" };
+export function lossScaleOf(result: CheckResult | CheckAnswer): LossScaleSummary {
+  if (!("lossScaleAnswer" in result)) return { status: "not-evaluated" };
+  const answer = result.lossScaleAnswer;
+  if (answer === null) return { status: "not-needed" };
+  const w = answer.window;
+  if (w.empty || w.pickLog2 === null || w.lowestLog2 === null || w.highestLog2 === null) {
+    return { status: "empty", reason: answer.sentences[0] ?? "no power of two keeps every gradient from both overflowing and flushing" };
   }
-  return { status: "window", pickLog2: window.pickLog2, lowLog2: window.lowestLog2, highLog2: window.highestLog2 };
+  return { status: "window", pickLog2: w.pickLog2, lowLog2: w.lowestLog2, highLog2: w.highestLog2 };
 }
 
 /** One batch row's worth of a check result. */
-export function summarizeCheck(result: CheckResult): SpecSummary {
+export function summarizeCheck(result: CheckResult | CheckAnswer): SpecSummary {
   return {
     name: result.spec.name,
     verdict: result.verdict,

@@ -67,15 +67,15 @@ describe("the packed package, installed by name", () => {
     const dts = readFileSync(join(project, "node_modules", "headroom", "dist", "index.d.ts"), "utf8");
     expect(dts).toContain('export * from "./check.js"');
     const checkDts = readFileSync(join(project, "node_modules", "headroom", "dist", "check.d.ts"), "utf8");
-    expect(checkDts).toMatch(/export declare function check\(spec: NetworkSpec, options\?: CheckOptions\): CheckResult;/);
+    expect(checkDts).toMatch(/export declare function check\(spec: NetworkSpec, options\?: CheckAnswerOptions\): CheckAnswer;/);
   });
 
   test("a TypeScript consumer type-checks against the installed types (module resolution by name)", () => {
     const probe = [
-      'import { check, parseSpec, batchCheck, type BatchRow, type CheckResult } from "headroom";',
+      'import { check, parseSpec, batchCheck, type BatchRow, type CheckAnswer } from "headroom";',
       'const parsed = parseSpec("name: x", "x.yaml");',
       "if (parsed.ok) {",
-      "  const result: CheckResult = check(parsed.spec);",
+      "  const result: CheckAnswer = check(parsed.spec);",
       '  const verdict: "fits" | "at-risk" | "fails" = result.verdict;',
       "  void verdict;",
       "} else {",
@@ -85,7 +85,7 @@ describe("the packed package, installed by name", () => {
       'const rows: Promise<BatchRow[]> = batchCheck(["specs"], { workers: 1 });',
       "void rows;",
       "// @ts-expect-error a verdict is one of three words",
-      'const wrong: CheckResult["verdict"] = "maybe";',
+      'const wrong: CheckAnswer["verdict"] = "maybe";',
       "void wrong;",
       "",
     ].join("\n");

@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, expectTypeOf, test } from "vitest";
 import * as api from "../../src/index.js";
-import type { BatchRow, CheckResult, NetworkSpec, SpecResult } from "../../src/index.js";
+import type { BatchRow, CheckAnswer, NetworkSpec, SpecResult } from "../../src/index.js";
 
 // The package's public surface, as `import { ... } from "headroom"` sees it. The list is made by
 // test/api/generate-public-api.mjs from the build; a change to it is a change to the API.
@@ -18,9 +18,9 @@ describe("the public API (src/index.ts)", () => {
   });
   test("results are typed", () => {
     expectTypeOf(api.check).parameter(0).toEqualTypeOf<NetworkSpec>();
-    expectTypeOf(api.check).returns.toEqualTypeOf<CheckResult>();
+    expectTypeOf(api.check).returns.toEqualTypeOf<CheckAnswer>();
     expectTypeOf(api.parseSpec).returns.toEqualTypeOf<SpecResult>();
-    expectTypeOf<CheckResult["verdict"]>().toEqualTypeOf<"fits" | "at-risk" | "fails">();
+    expectTypeOf<CheckAnswer["verdict"]>().toEqualTypeOf<"fits" | "at-risk" | "fails">();
     expectTypeOf(api.batchCheck).returns.toEqualTypeOf<Promise<BatchRow[]>>();
     expectTypeOf<Extract<BatchRow, { status: "ok" }>["summary"]["verdict"]>().toEqualTypeOf<"fits" | "at-risk" | "fails">();
   });

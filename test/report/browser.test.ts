@@ -9,7 +9,7 @@ import { check } from "../../src/check.js";
 import { loadSpec } from "../../src/spec/index.js";
 import { renderHtmlReport } from "../../src/report/html.js";
 import { reportModel } from "../../src/report/report-from-check.js";
-import type { CheckResult } from "../../src/risk/index.js";
+import type { CheckAnswer as CheckResult } from "../../src/check.js";
 
 // The HTML report in a real browser: Debian's chromium driven by playwright-core (LIBRARIES.md §8).
 // .ci/run installs chromium; without it this test is skipped with a message, never passed silently.

@@ -56,6 +56,8 @@ describe("renderHtmlReport", () => {
     const notEvaluated = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-evaluated" }, notes: [] } });
     expect(notEvaluated).toContain("<strong>Not evaluated.</strong>");
     expect(notEvaluated).not.toContain("scale-chart");
+    const notNeeded = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed" }, notes: [] } });
+    expect(notNeeded).toContain("No loss scale is needed");
     const empty = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "empty", reason: "gradients <flush>" }, notes: [] } });
     expect(empty).toContain("No static loss scale serves the whole horizon.</strong> gradients &lt;flush&gt;");
   });
