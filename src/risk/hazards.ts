@@ -326,7 +326,7 @@ function lossValue(site: HazardSite, context: HazardContext): Draft[] {
       capAtRisk: onlyIfNotWidened,
       sentence: (verdict: Verdict) =>
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${plainNumber(context.lossScale)}) overflows ${limits.format} when a term exceeds ${plainNumber(critical)} ` +
+        `${plainNumber(context.lossScale)}) overflows ${limits.format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(critical)} ` +
         `(predicted ${plainNumber(site.input.rms)}); probability ${plainNumber(value)} per step` +
         `${onlyIfNotWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`,
     };
