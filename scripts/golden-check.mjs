@@ -39,3 +39,19 @@ for (const file of files) {
   console.log(`${name}: ${result.formats.map((f) => `${f.format} ${f.verdict}`).join(", ")}`);
 }
 process.exitCode = failures > 0 ? 1 : 0;
+
+// keep the README's example output in step with the golden text of the bundled example it shows
+const README_EXAMPLE = "cnn-batchnorm";
+const readmePath = join(root, "README.md");
+const { readFile } = await import("node:fs/promises");
+const readme = await readFile(readmePath, "utf8");
+const start = "<!-- check-example:start -->";
+const end = "<!-- check-example:end -->";
+const from = readme.indexOf(start);
+const to = readme.indexOf(end);
+if (from >= 0 && to > from) {
+  const text = await readFile(join(goldenDir, `${README_EXAMPLE}.txt`), "utf8");
+  const block = `${start}\n\`\`\`text\n$ headroom check specs/${README_EXAMPLE}.yaml\n${text}\`\`\`\n`;
+  await writeWhole(readmePath, readme.slice(0, from) + block + readme.slice(to));
+  console.log(`README.md: example output of ${README_EXAMPLE} updated`);
+}

@@ -9,7 +9,7 @@ import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove, scaleProfile } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { percent, plainNumber } from "./words.js";
+import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -326,7 +326,7 @@ function lossValue(site: HazardSite, context: HazardContext): Draft[] {
       capAtRisk: onlyIfNotWidened,
       sentence: (verdict: Verdict) =>
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${plainNumber(context.lossScale)}) overflows ${limits.format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(critical)} ` +
+        `${scaleWords(context.lossScale)}) overflows ${limits.format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(critical)} ` +
         `(predicted ${plainNumber(site.input.rms)}); probability ${plainNumber(value)} per step` +
         `${onlyIfNotWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`,
     };

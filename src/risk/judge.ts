@@ -21,7 +21,7 @@ import { rangeLimits } from "./profile.js";
 import { tensorFormatRisk, tensorStatistics, worstVerdict, type TensorFormatRisk, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge } from "./verdict.js";
-import { plainNumber } from "./words.js";
+import { plainNumber, scaleWords } from "./words.js";
 
 /** Options of `check` and {@link judgePrediction}. */
 export interface CheckOptions {
@@ -416,11 +416,11 @@ function checkAssumptions(
     );
   } else if (lossScale.origin === "recommended") {
     notes.push(
-      `The plan gives no loss scale; gradients and the loss are judged multiplied by the recommended 2^${lossScale.window?.pickLog2} = ${plainNumber(lossScale.value)}, ` +
+      `The plan gives no loss scale; gradients are judged multiplied by the recommended ${scaleWords(lossScale.value)}, ` +
         `picked inside the window of powers of two where no ${lossScale.window?.format} gradient overflows beyond the risk budget or flushes beyond the tolerance (src/scale defaults).`,
     );
   } else {
-    notes.push(`Gradients and the loss are judged multiplied by the loss scale ${plainNumber(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}).`);
+    notes.push(`Gradients are judged multiplied by the loss scale ${scaleWords(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}), and the scaled loss as an operation.`);
   }
   notes.push(
     "Overflow risk is the probability that at least one element of a step passes the overflow threshold, with " +

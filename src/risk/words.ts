@@ -33,3 +33,12 @@ export function binades(x: number): string {
 export function when(at: "start" | "end"): string {
   return at === "start" ? "at the start of training" : "at the end of the horizon";
 }
+
+/**
+ * A loss scale: a power of two as `2^k`, anything else as a plain number.
+ * @example scaleWords(131072) // => "2^17"
+ */
+export function scaleWords(scale: number): string {
+  const k = Math.log2(scale);
+  return Number.isInteger(k) && k !== 0 ? `2^${k}` : plainNumber(scale);
+}

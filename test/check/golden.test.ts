@@ -32,3 +32,19 @@ describe("every example spec checks without error and matches its golden result"
     });
   }
 });
+
+describe("README.md", () => {
+  it("shows the real output of the bundled example (kept in step by scripts/golden-check.mjs)", () => {
+    const readme = readFileSync("README.md", "utf8");
+    const block = /<!-- check-example:start -->\n```text\n\$ headroom check specs\/([\w-]+)\.yaml\n([\s\S]*?)```\n<!-- check-example:end -->/.exec(readme);
+    expect(block).not.toBeNull();
+    expect(block?.[2]).toBe(readFileSync(`test/golden/check/${block?.[1]}.txt`, "utf8"));
+  });
+
+  it("starts a newcomer with npm ci and a check of a bundled example", () => {
+    const readme = readFileSync("README.md", "utf8");
+    const command = /npm ci && npx headroom check (specs\/[\w-]+\.yaml)/.exec(readme);
+    expect(command).not.toBeNull();
+    expect(SPECS).toContain(command?.[1]?.replace("specs/", ""));
+  });
+});
