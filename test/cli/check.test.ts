@@ -74,6 +74,14 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(bad.stderr).not.toMatch(STACK);
   });
 
+  it("a network that parses but cannot be built is positioned like any spec problem", () => {
+    const run = runCli(["check", "test/fixtures/specs/hazards/graph-error.yaml"]);
+    expect(run.status).toBe(2);
+    expect(run.stdout).toBe("");
+    expect(run.stderr).toMatch(/^test\/fixtures\/specs\/hazards\/graph-error\.yaml:9:5: layers\[0\]: .*conv2d needs an image input/);
+    expect(run.stderr).not.toMatch(STACK);
+  });
+
   it("a file that is not a spec", () => {
     const run = runCli(["check", "README.md"]);
     expect(run.status).toBe(2);
