@@ -202,7 +202,10 @@ export class TensorAccumulator {
     if (values instanceof Float32Array) {
       if (this.plan.width !== 32) throw new TypeError("a binary64 bucket plan was given binary32 values");
       const blocks = Math.ceil(values.length / BLOCK);
-      if (this.pendingBlocks.length < blocks) this.pendingBlocks = new Int32Array(blocks);
+      if (this.pendingBlocks.length < blocks) {
+        this.pendingBlocks = new Int32Array(blocks);
+        this.pendingBuckets = new Int32Array(blocks);
+      }
       this.add32(values);
     } else {
       if (this.plan.width !== 64) throw new TypeError("a binary32 bucket plan was given binary64 values");
@@ -216,6 +219,8 @@ export class TensorAccumulator {
   private readonly impureSeen: Uint32Array;
   /** starts of the blocks of the current chunk that touched impure buckets */
   private pendingBlocks = new Int32Array(0);
+  /** for each pending block: the one impure bucket it touched, or −2 for several */
+  private pendingBuckets = new Int32Array(0);
 
   /**
    * binary32 values. The fast pass counts buckets, squares and extremes with no per-element branch; the chunk then
@@ -261,15 +266,19 @@ export class TensorAccumulator {
         sum0 += x * x;
       }
       // a block that put anything into a bucket a boundary cuts is classified element by element below
-      let hit = false;
+      // (-1: none; a bucket; -2: several)
+      let hit = -1;
       for (let k = 0; k < impure.length; k++) {
         const c = chunk[impure[k]!]!;
         if (c !== seen[k]) {
           seen[k] = c;
-          hit = true;
+          hit = hit === -1 ? impure[k]! : -2;
         }
       }
-      if (hit) this.pendingBlocks[pending++] = start;
+      if (hit !== -1) {
+        this.pendingBlocks[pending] = start;
+        this.pendingBuckets[pending++] = hit;
+      }
     }
     const lowBucket = minU >> 16;
     const highBucket = maxU >> 16;
@@ -289,7 +298,7 @@ export class TensorAccumulator {
     }
     for (let p = 0; p < pending; p++) {
       const start = this.pendingBlocks[p]!;
-      this.impurePass32(values, bits, start, Math.min(n, start + BLOCK));
+      this.impurePass32(values, bits, start, Math.min(n, start + BLOCK), this.pendingBuckets[p]!);
     }
     this.sumOfSquares += sum0 + sum1;
     const extremes = new Float32Array(Int32Array.of(maxU, minU).buffer);
@@ -297,8 +306,18 @@ export class TensorAccumulator {
     if (extremes[1]! < this.minNonzero) this.minNonzero = extremes[1]!;
   }
 
-  /** Classify the elements of values[start, end) that fall in buckets a boundary cuts (already in the histogram). */
-  private impurePass32(values: Float32Array, bits: Int32Array, start: number, end: number): void {
+  /**
+   * Classify the elements of values[start, end) that fall in buckets a boundary cuts (already in the histogram);
+   * `only` is the one such bucket the block touched, or −2 when it touched several.
+   */
+  private impurePass32(values: Float32Array, bits: Int32Array, start: number, end: number, only: number): void {
+    if (only >= 0) {
+      // one bucket: a register comparison per element instead of a table lookup
+      for (let i = start; i < end; i++) {
+        if ((bits[i]! & 0x7fffffff) >> 16 === only) this.classifyImpure(Math.abs(values[i]!), only);
+      }
+      return;
+    }
     const slow = this.plan.slow;
     for (let i = start; i < end; i++) {
       const b = (bits[i]! & 0x7fffffff) >> 16;

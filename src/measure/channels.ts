@@ -16,15 +16,18 @@ export interface ChannelAxis {
   loudestRms: number;
   /** loudestRms / medianRms: how far the loudest channel stands out (null when the median is 0) */
   rmsRatio: number | null;
-  /** the largest value of (channel max |x|) / (channel rms), and the channel it belongs to */
-  maxOverRms: number;
-  maxOverRmsChannel: number;
+  /**
+   * the largest value of (channel max |x|) / (channel rms), and the channel it belongs to; tracked along the axis that
+   * changes slowest in storage (rows of a C-order matrix, columns of a Fortran-order one, the elements of a vector),
+   * null along the other axis, where a per-element maximum per channel would cost a second store per element
+   */
+  maxOverRms: number | null;
+  maxOverRmsChannel: number | null;
 }
 
 /** Accumulates per-row and per-column (or per-element) statistics of a rank-1 or rank-2 tensor, in storage order. */
 export class ChannelAccumulator {
   private readonly fastSum: Float64Array;
-  private readonly fastMax: Float64Array;
   private readonly slowSum: Float64Array;
   private readonly slowMax: Float64Array;
   private readonly fastCount: number;
@@ -49,7 +52,6 @@ export class ChannelAccumulator {
     this.fastCount = vector ? this.rows : order === "C" ? this.columns : this.rows;
     const slowCount = vector ? 1 : order === "C" ? this.rows : this.columns;
     this.fastSum = new Float64Array(this.fastCount);
-    this.fastMax = new Float64Array(this.fastCount);
     this.slowSum = new Float64Array(slowCount);
     this.slowMax = new Float64Array(slowCount);
     this.vector = vector;
@@ -66,7 +68,7 @@ export class ChannelAccumulator {
     let done = 0;
     while (done < values.length) {
       const length = Math.min(fastCount - fast, values.length - done);
-      addRun(values, done, length, fast, this.fastSum, this.fastMax, this.slowSum, this.slowMax, slow);
+      addRun(values, done, length, fast, this.fastSum, this.slowSum, this.slowMax, slow);
       done += length;
       fast += length;
       if (fast === fastCount) {
@@ -78,26 +80,27 @@ export class ChannelAccumulator {
 
   /** The outlier figures: one axis for a vector, rows then columns for a matrix. */
   result(): ChannelAxis[] {
-    if (this.vector) return [axisFigures("element", this.fastSum, this.fastMax, 1)];
+    if (this.vector) return [axisFigures("element", this.fastSum, null, 1)];
     const [rowSum, rowMax, colSum, colMax] =
       this.order === "C"
-        ? [this.slowSum, this.slowMax, this.fastSum, this.fastMax]
-        : [this.fastSum, this.fastMax, this.slowSum, this.slowMax];
+        ? [this.slowSum, this.slowMax, this.fastSum, null]
+        : [this.fastSum, null, this.slowSum, this.slowMax];
     return [axisFigures("row", rowSum, rowMax, this.columns), axisFigures("column", colSum, colMax, this.rows)];
   }
 }
 
-function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float64Array, perChannel: number): ChannelAxis {
+function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float64Array | null, perChannel: number): ChannelAxis {
   const n = sums.length;
   const rms = new Float64Array(n);
   for (let i = 0; i < n; i++) rms[i] = perChannel > 0 ? Math.sqrt(sums[i]! / perChannel) : 0;
   let loudest = 0;
-  let maxOverRms = 0;
-  let maxOverRmsChannel = 0;
+  let maxOverRms: number | null = maxes ? 0 : null;
+  let maxOverRmsChannel: number | null = maxes ? 0 : null;
   for (let i = 0; i < n; i++) {
     if (rms[i]! > rms[loudest]!) loudest = i;
+    if (!maxes) continue;
     const ratio = rms[i]! > 0 ? Math.sqrt(maxes[i]!) / rms[i]! : 0;
-    if (ratio > maxOverRms) {
+    if (ratio > maxOverRms!) {
       maxOverRms = ratio;
       maxOverRmsChannel = i;
     }
@@ -118,8 +121,8 @@ function axisFigures(axis: ChannelAxis["axis"], sums: Float64Array, maxes: Float
 }
 
 /**
- * One run of consecutive elements along the fast axis (part of one row in C order): squares and largest squares go to
- * each element's fast-axis channel and, summed, to the run's slow-axis channel. Maxima are kept as squares (no abs).
+ * One run of consecutive elements along the fast axis (part of one row in C order): squares go to each element's
+ * fast-axis channel and, summed, to the run's slow-axis channel, whose largest square is kept too (no abs needed).
  */
 function addRun(
   values: Float32Array | Float64Array,
@@ -127,7 +130,6 @@ function addRun(
   length: number,
   fast: number,
   fastSum: Float64Array,
-  fastMaxSquare: Float64Array,
   slowSum: Float64Array,
   slowMaxSquare: Float64Array,
   slow: number,
@@ -141,7 +143,6 @@ function addRun(
     if (s < Infinity) {
       const c = fast + i;
       fastSum[c] = fastSum[c]! + s;
-      fastMaxSquare[c] = s > fastMaxSquare[c]! ? s : fastMaxSquare[c]!;
       sum += s;
       maxSquare = s > maxSquare ? s : maxSquare;
     }

@@ -153,6 +153,18 @@ describe("TensorAccumulator cast counts equal element-by-element rounding (round
     });
   });
 
+  it("long binary32 chunks whose blocks each touch one boundary bucket", () => {
+    // e4m3 flushes |x| ≤ 2^-10 and keeps 2^-10·(1 + 2^-20): both share one bucket (OCP 8-bit specification limits)
+    const values = new Float32Array(40_000).fill(0.5);
+    for (let i = 0; i < values.length; i += 1500) values[i] = i % 3000 === 0 ? 2 ** -10 : 2 ** -10 * (1 + 2 ** -20);
+    const targets = targetsFor();
+    const tally = tallyOf(values, targets, values.length);
+    targets.forEach((target, t) => {
+      expect(tally.casts[t]).toEqual(referenceCounts(target.format as FormatName, values, target.overflow));
+    });
+    expect(tally.casts[2]!.flushed).toBe(14);
+  });
+
   it("fast-check: random binary32 and binary64 arrays", () => {
     const element = fc.oneof(
       fc.double(),
@@ -300,8 +312,14 @@ describe("ChannelAccumulator", () => {
       const c = direct("column");
       expect(colAxis!.channels).toBe(cols);
       expect(colAxis!.loudest).toBe(6);
-      const ratios = c.rms.map((v, i) => c.max[i]! / v);
-      expect(colAxis!.maxOverRms).toBeCloseTo(Math.max(...ratios), 12);
+      // the largest magnitude per channel is tracked along the slow storage axis: rows in C order, columns in F order
+      const slowAxis = order === "C" ? rowAxis! : colAxis!;
+      const fastAxis = order === "C" ? colAxis! : rowAxis!;
+      const ref = order === "C" ? r : c;
+      const ratios = ref.rms.map((v, i) => ref.max[i]! / v);
+      expect(slowAxis.maxOverRms).toBeCloseTo(Math.max(...ratios), 12);
+      expect(slowAxis.maxOverRmsChannel).toBe(ratios.indexOf(Math.max(...ratios)));
+      expect(fastAxis.maxOverRms).toBeNull();
     });
   }
 
