@@ -1,5 +1,8 @@
-import { Option } from "commander";
+import { rename, writeFile } from "node:fs/promises";
+import { getFormat } from "../formats/index.js";
+import type { MagnitudeProfile } from "../magnitude/index.js";
 import { predict } from "../magnitude/index.js";
+import { escapeHtml } from "../report/html.js";
 import { formatBinades, formatBytes, formatPercent, formatValue } from "../report/number.js";
 import { renderTable, type Cell } from "../report/table.js";
 import { formatSpecIssue, loadSpec } from "../spec/index.js";
@@ -29,6 +32,7 @@ interface SimulateFlags {
   microBatches: string;
   all?: boolean;
   json?: boolean;
+  html?: string;
 }
 
 const ESTIMATE_NOTE =
@@ -54,6 +58,7 @@ export const register: RegisterCommand = (program) => {
     .option("--micro-batches <n>", "micro-batches (accumulation steps × workers) run per step at most", "8")
     .option("--all", "list every tensor, not only those with findings or disagreements")
     .option("--json", "write the result as JSON")
+    .option("--html <file>", "also write a page with each tensor's measured band drawn over its predicted band")
     .addHelpText(
       "after",
       "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input.",
@@ -85,6 +90,16 @@ export const register: RegisterCommand = (program) => {
         if (error instanceof SimulationTooLarge) throw new UserError(`${path}: ${error.message}`);
         if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
         throw error;
+      }
+      if (flags.html !== undefined) {
+        // written whole or not at all: a temporary file renamed into place
+        const temporary = `${flags.html}.${process.pid}.tmp`;
+        try {
+          await writeFile(temporary, renderSimulationHtml(report));
+          await rename(temporary, flags.html);
+        } catch (error) {
+          throw new UserError(`--html ${flags.html}: cannot write the page (${error instanceof Error ? error.message : String(error)})`);
+        }
       }
       process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
       raiseExitCode(simulationExitCode(report.result));
@@ -307,4 +322,110 @@ export function renderSimulationJson(report: SimulationReport): string {
     note: ESTIMATE_NOTE,
   };
   return JSON.stringify(out, null, 2) + "\n";
+}
+
+/** |x| at the 1% and 99% points of a profile's nonzero elements (median draw), by its element shape. */
+function predictedBand(p: MagnitudeProfile): [number, number] {
+  // quantiles of |Z|: P(|Z| ≤ 0.01253) = 1%, P(|Z| ≤ 2.5758) = 99% (standard normal table)
+  switch (p.shape) {
+    case "gaussian":
+    case "half-gaussian":
+      return [0.01253 * p.rms, 2.5758 * p.rms];
+    case "bounded":
+      return [0.01253 * p.rms, Math.min(2.5758 * p.rms, p.bound ?? Infinity)];
+    case "uniform":
+      return [0.01 * Math.sqrt(3) * p.rms, 0.99 * Math.sqrt(3) * p.rms];
+    case "constant":
+      return [p.rms, p.rms];
+    case "log-normal": {
+      // log2|x| ~ N(m, s²) with m = log2 rms − s²·ln 2 (src/magnitude/types.ts); 2.3263 is the 99% normal quantile
+      const s = p.elementLog2Spread ?? 0;
+      const m = Math.log2(p.rms) - s * s * Math.LN2;
+      return [2 ** (m - 2.3263 * s), Math.min(2 ** (m + 2.3263 * s), p.bound ?? Infinity)];
+    }
+  }
+}
+
+/**
+ * A self-contained page (inline SVG, no scripts): one row per compared tensor on a log2 axis, the predicted band
+ * (1%–99% of element magnitudes at the median draw) in grey, the measured band (1%–99% of the measured
+ * magnitudes, median over draws) in blue over it, rms marks, and the row's format edges (flush bound, largest finite).
+ */
+export function renderSimulationHtml(report: SimulationReport): string {
+  const { result, comparison } = report;
+  const rows = (comparison?.rows ?? []).filter((r) => r.measured.median.rms > 0 || r.predictedRms > 0);
+  const logs: number[] = [];
+  const bands = rows.map((r) => {
+    const predicted = predictedBand(r.predictedProfile).map(Math.log2) as [number, number];
+    const q = r.measured.median.quantiles;
+    const measured = [Math.log2(q[0]), Math.log2(q[4])] as [number, number];
+    for (const v of [...predicted, ...measured]) if (Number.isFinite(v)) logs.push(v);
+    return { r, predicted, measured };
+  });
+  const lo = Math.floor(Math.min(0, ...logs)) - 1;
+  const hi = Math.ceil(Math.max(0, ...logs)) + 1;
+  const width = 960;
+  const left = 330;
+  const right = width - 20;
+  const rowHeight = 16;
+  const top = 34;
+  const x = (log2: number): number => left + ((Math.min(Math.max(log2, lo), hi) - lo) / (hi - lo)) * (right - left);
+  const f = (v: number): string => String(Math.round(v * 10) / 10);
+  const height = top + rows.length * rowHeight + 10;
+  const ticks: string[] = [];
+  const step = Math.max(1, Math.ceil((hi - lo) / 16));
+  for (let k = Math.ceil(lo / step) * step; k <= hi; k += step) {
+    ticks.push(`<line x1="${f(x(k))}" x2="${f(x(k))}" y1="${top - 6}" y2="${height - 6}" class="grid"/><text x="${f(x(k))}" y="${top - 10}" class="tick">2^${k}</text>`);
+  }
+  const body = bands
+    .map(({ r, predicted, measured }, i) => {
+      const y = top + i * rowHeight;
+      const format = getFormat(r.format);
+      const edges = [Math.log2(format.flushBound), Math.log2(format.maxFinite)]
+        .filter((v) => v >= lo && v <= hi)
+        .map((v) => `<line x1="${f(x(v))}" x2="${f(x(v))}" y1="${y + 1}" y2="${y + rowHeight - 1}" class="edge"/>`)
+        .join("");
+      const band = (b: [number, number], cls: string, inset: number): string =>
+        Number.isFinite(b[0]) && Number.isFinite(b[1])
+          ? `<rect x="${f(x(b[0]))}" y="${y + inset}" width="${f(Math.max(x(b[1]) - x(b[0]), 1.5))}" height="${rowHeight - 2 * inset}" class="${cls}"/>`
+          : "";
+      const mark = (v: number, cls: string): string => (v > 0 ? `<line x1="${f(x(Math.log2(v)))}" x2="${f(x(Math.log2(v)))}" y1="${y + 1}" y2="${y + rowHeight - 1}" class="${cls}"/>` : "");
+      const title = `${r.id}: predicted rms ${formatValue(r.predictedRms)}, measured ${formatValue(r.measured.median.rms)} (${formatBinades(r.differenceBinades)} binades), ${r.format}`;
+      return (
+        `<g${r.disagrees ? ' class="disagrees"' : ""}><title>${escapeHtml(title)}</title>` +
+        `<text x="${left - 6}" y="${y + rowHeight - 4}" class="label">${escapeHtml(r.id.length > 48 ? "…" + r.id.slice(-47) : r.id)}</text>` +
+        band(predicted, "predicted", 1) +
+        band(measured, "measured", 4) +
+        mark(r.predictedRms, "rms-predicted") +
+        mark(r.measured.median.rms, "rms-measured") +
+        edges +
+        "</g>"
+      );
+    })
+    .join("\n");
+  const shrunk = result.shrink.shrunk ? `<p>Shrunk for speed: ${result.shrink.changes.map(escapeHtml).join("; ")}. Predictions are for the shrunk network.</p>` : "";
+  return `<!doctype html>
+<html lang="en"><head><meta charset="utf-8">
+<meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'">
+<title>${escapeHtml(`headroom simulate: ${result.specName}`)}</title>
+<style>
+body { font: 13px system-ui, sans-serif; margin: 16px; color: #222; }
+.tick { font-size: 10px; text-anchor: middle; fill: #555; } .label { font: 11px monospace; text-anchor: end; fill: #222; }
+.grid { stroke: #eee; } .edge { stroke: #c33; stroke-width: 1.5; }
+.predicted { fill: #bbb; } .measured { fill: #3a7bd5; opacity: 0.75; }
+.rms-predicted { stroke: #000; stroke-width: 2; } .rms-measured { stroke: #0b3d91; stroke-width: 2; stroke-dasharray: 2 1; }
+.disagrees .label { fill: #b00; font-weight: bold; }
+</style></head><body>
+<h1>${escapeHtml(`${result.specName}: measured against predicted magnitudes`)}</h1>
+<p>Plan ${escapeHtml(result.planName)}, loss scale ${escapeHtml(String(result.lossScale))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
+Grey: predicted 1%–99% of element magnitudes (median draw); blue: measured 1%–99% (median over draws); black and dashed blue marks: predicted and measured rms;
+red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.</p>
+${shrunk}
+<svg xmlns="http://www.w3.org/2000/svg" width="${width}" height="${height}" role="img" aria-label="measured and predicted magnitude bands">
+${ticks.join("")}
+${body}
+</svg>
+<p>${escapeHtml(ESTIMATE_NOTE)}</p>
+</body></html>
+`;
 }

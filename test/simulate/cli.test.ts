@@ -1,4 +1,4 @@
-import { mkdtempSync, writeFileSync, rmSync } from "node:fs";
+import { mkdtempSync, readFileSync, writeFileSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
@@ -58,6 +58,18 @@ describe("headroom simulate (the built binary)", () => {
     expect(pre.afterSteps).toBeDefined();
     expect(out.steps).toBe(2);
     expect(out.history[0]).toHaveLength(2);
+  });
+
+  it("writes a page with measured bands over predicted ones (--html), whole, with no scripts", () => {
+    const page = join(dir, "bands.html");
+    const run = runCli(["simulate", specFile("small.yaml", SMALL), "--html", page]);
+    expect(run.status).toBe(0);
+    const html = readFileSync(page, "utf8");
+    expect(html).toContain("<svg");
+    expect(html).toContain('class="measured"');
+    expect(html).toContain('class="predicted"');
+    expect(html).toContain("dense-0/pre-activation");
+    expect(html).not.toContain("<script");
   });
 
   it("states what was shrunk", () => {
