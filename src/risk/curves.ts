@@ -3,7 +3,7 @@
  * k, the input of the loss-scale window (src/scale/window.ts takes objects of this shape).
  */
 import type { TensorPrediction } from "../magnitude/types.js";
-import { energyBelow, probabilityAnyAbove, scaleProfile } from "./profile.js";
+import { energyBelow, energyBelowBounds, probabilityAnyAbove, scaleProfile } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
@@ -14,6 +14,8 @@ export interface LossScaleCurves {
   overflowRisk(log2Scale: number): number;
   /** share of the tensor's squared norm flushed to zero at scale 2^k (nonincreasing in k) */
   flushedEnergy(log2Scale: number): number;
+  /** cheap bounds [low, high] on flushedEnergy (the exact value twice once it is known) */
+  flushedEnergyBounds(log2Scale: number): readonly [number, number];
 }
 
 /**
@@ -45,6 +47,14 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
             flush.set(k, value);
           }
           return value;
+        },
+        flushedEnergyBounds(k: number): readonly [number, number] {
+          const value = flush.get(k);
+          if (value !== undefined) return [value, value];
+          // the worse of two values lies between the worse of their lower and the worse of their upper bounds
+          const start = energyBelowBounds(scaleProfile(tensor.start, 2 ** k), limits.flushBound);
+          const end = energyBelowBounds(scaleProfile(tensor.end, 2 ** k), limits.flushBound);
+          return [Math.max(start[0], end[0]), Math.max(start[1], end[1])];
         },
       };
     });

@@ -170,10 +170,39 @@ const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
   return { z, w };
 })();
 
+// The same integral by the trapezoid rule on two coarse sub-grids of the grid above: step 1/2 (every 4th node)
+// and step 3/4 (every 6th), each with its own normalised weights. For a smooth integrand the trapezoid rule on the
+// whole line converges geometrically in 1/step (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory),
+// and the Gaussian weight alone is resolved to about 2e^{−2π²/step²} (1e-15 at step 3/4). When the two sums agree
+// to 1e-10, the step-1/2 sum is good to about the 3/2 power of that: the far digits of the Simpson sum, at 49
+// evaluations instead of 145. Steps in the integrand (a bound, a threshold the draws cross) fail the test and get
+// the full rule, as does an integrand whose end nodes carry weight (the rules treat the cut at ±9 differently).
+const HALF_STRIDE = 4;
+const THREE_QUARTER_STRIDE = 6;
+function trapezoidWeights(stride: number): Float64Array {
+  const { z } = DRAW_NODES;
+  const weights = new Float64Array(z.length);
+  let total = 0;
+  for (let i = 0; i < z.length; i += stride) {
+    const end = i === 0 || i === z.length - 1 ? 0.5 : 1;
+    weights[i] = end * normalPdf(z[i] as number);
+    total += weights[i] as number;
+  }
+  for (let i = 0; i < z.length; i += stride) weights[i] = (weights[i] as number) / total;
+  return weights;
+}
+const HALF_WEIGHTS = trapezoidWeights(HALF_STRIDE);
+const THREE_QUARTER_WEIGHTS = trapezoidWeights(THREE_QUARTER_STRIDE);
+const COARSE_AGREEMENT = 1e-10;
+const COARSE_END_SHARE = 1e-13;
+// integrand values of one call (overDraws never re-enters itself: its f are element laws)
+const VALUES = new Float64Array(DRAW_NODES.z.length);
+
 /**
  * E over draws of a probability or share f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width
  * spread, Hanin & Nica 2019): f(rms) itself when the scale does not spread. Clamped to [0, 1] against the
- * rounding of the quadrature sum.
+ * rounding of the quadrature sum. Smooth integrands take the coarse rule (49 evaluations, see HALF_STRIDE), the
+ * others the Simpson rule (145).
  */
 export function overDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
   if (!(log2Spread > 0)) return f(rms);
@@ -184,11 +213,50 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   const low = f(rms * 2 ** (log2Spread * (z[0] as number)));
   const high = f(rms * 2 ** (log2Spread * (z[last] as number)));
   if (low === high) return Math.min(1, Math.max(0, low));
-  let sum = (w[0] as number) * low + (w[last] as number) * high;
-  for (let i = 1; i < last; i++) {
-    sum += (w[i] as number) * f(rms * 2 ** (log2Spread * (z[i] as number)));
+  const values = VALUES;
+  values[0] = low;
+  values[last] = high;
+  let half = HALF_WEIGHTS[0]! * low + HALF_WEIGHTS[last]! * high;
+  let threeQuarter = THREE_QUARTER_WEIGHTS[0]! * low + THREE_QUARTER_WEIGHTS[last]! * high;
+  for (let i = HALF_STRIDE; i < last; i += HALF_STRIDE) {
+    const value = f(rms * 2 ** (log2Spread * (z[i] as number)));
+    values[i] = value;
+    half += HALF_WEIGHTS[i]! * value;
   }
+  for (let i = THREE_QUARTER_STRIDE; i < last; i += THREE_QUARTER_STRIDE) {
+    let value = values[i] as number;
+    if (i % HALF_STRIDE !== 0) {
+      value = f(rms * 2 ** (log2Spread * (z[i] as number)));
+      values[i] = value;
+    }
+    threeQuarter += THREE_QUARTER_WEIGHTS[i]! * value;
+  }
+  const ends = HALF_WEIGHTS[0]! * Math.abs(low) + HALF_WEIGHTS[last]! * Math.abs(high);
+  if (Math.abs(half - threeQuarter) <= COARSE_AGREEMENT * Math.abs(half) && ends <= COARSE_END_SHARE * Math.abs(half)) {
+    return Math.min(1, Math.max(0, half));
+  }
+  for (let i = 1; i < last; i++) {
+    if (i % HALF_STRIDE !== 0 && i % THREE_QUARTER_STRIDE !== 0) values[i] = f(rms * 2 ** (log2Spread * (z[i] as number)));
+  }
+  let sum = (w[0] as number) * low + (w[last] as number) * high;
+  for (let i = 1; i < last; i++) sum += (w[i] as number) * (values[i] as number);
   return Math.min(1, Math.max(0, sum));
+}
+
+/**
+ * The integrand of {@link overDraws} at its two extreme draws, lowest value first: bounds of the integral for
+ * a monotone f (the weights are positive and sum to 1), widened by 1e-12 for the rounding of the sum.
+ */
+export function overDrawsBounds(rms: number, log2Spread: number, f: (r: number) => number): [number, number] {
+  if (!(log2Spread > 0)) {
+    const value = f(rms);
+    return [value, value];
+  }
+  const { z } = DRAW_NODES;
+  const a = f(rms * 2 ** (log2Spread * (z[0] as number)));
+  const b = f(rms * 2 ** (log2Spread * (z[z.length - 1] as number)));
+  if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
+  return [Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12))];
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a

@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, mixtureCrossing, overDraws } from "./laws.js";
+import { elementLaw, mixtureCrossing, overDraws, overDrawsBounds } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -101,6 +101,35 @@ export function energyBelow(profile: MagnitudeProfile, t: number): number {
   return overDraws(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
 }
 
+/**
+ * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the two extreme draws (it is
+ * monotone in the scale): two evaluations instead of the integral, for searches that only compare the share with
+ * a tolerance.
+ */
+export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number, number] {
+  if (isEmpty(profile)) return [0, 0];
+  if (isConstantLike(profile)) {
+    const value = fractionBelow(profile, t);
+    return [value, value];
+  }
+  const law = elementLaw(profile);
+  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+}
+
+/** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
+export function energyBelowExceeds(profile: MagnitudeProfile, t: number, level: number): boolean {
+  const [low, high] = energyBelowBounds(profile, t);
+  if (high <= level) return false;
+  if (low > level) return true;
+  return energyBelow(profile, t) > level;
+}
+
+// The levels of profileStatistics in binades from the rms depend on the element law, the element count, the
+// spread and the quantile levels only; many tensors (and every plan of a comparison) share them. Bounded, so a
+// long-running batch worker does not grow without end.
+const LEVELS = new Map<string, { max: number; low: number }>();
+const LEVELS_LIMIT = 100_000;
+
 /** The format-independent statistics of a profile at the given quantile levels. */
 export function profileStatistics(
   profile: MagnitudeProfile,
@@ -120,11 +149,20 @@ export function profileStatistics(
   // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
   // breaks the scale family, so solve without it and cap the levels at the bound afterwards
   const { bound, ...unbounded } = profile;
-  const gaussianLike = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
-  const maxLevel = mixtureCrossing((v) => anyOf(gaussianLike.above(1, 2 ** v), n), profile.log2Spread, levels.maxQuantile, true);
-  const lowLevel = mixtureCrossing((v) => gaussianLike.below(1, 2 ** v), profile.log2Spread, levels.lowQuantile, false);
-  let max = profile.rms * 2 ** maxLevel;
-  let low = profile.rms * 2 ** lowLevel;
+  const lawShape = profile.shape === "bounded" ? "gaussian" : profile.shape;
+  const key = `${lawShape}|${lawShape === "log-normal" ? (profile.elementLog2Spread ?? 0) : 0}|${n}|${profile.log2Spread}|${levels.maxQuantile}|${levels.lowQuantile}`;
+  let found = LEVELS.get(key);
+  if (found === undefined) {
+    const gaussianLike = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
+    found = {
+      max: mixtureCrossing((v) => anyOf(gaussianLike.above(1, 2 ** v), n), profile.log2Spread, levels.maxQuantile, true),
+      low: mixtureCrossing((v) => gaussianLike.below(1, 2 ** v), profile.log2Spread, levels.lowQuantile, false),
+    };
+    if (LEVELS.size >= LEVELS_LIMIT) LEVELS.clear();
+    LEVELS.set(key, found);
+  }
+  let max = profile.rms * 2 ** found.max;
+  let low = profile.rms * 2 ** found.low;
   if (bound !== undefined && bound > 0) {
     max = Math.min(max, bound);
     low = Math.min(low, bound);

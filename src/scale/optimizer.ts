@@ -98,13 +98,12 @@ export function swampedShare(
   const centre = Math.floor(Math.log2(weight.rms));
   const low = centre - 40;
   const high = centre + 12;
-  // P(|w| < t): a binade is [2^e, 2^(e+1)), so a weight exactly at 2^e belongs to binade e, not e − 1
-  const F = (t: number) => fractionBelow(weight, t * (1 - 2 ** -40));
+  const F = binadeEdges(weight, low, high);
   // mass below the lowest binade considered: charge it the loss of that binade (an upper bound, negligible mass)
-  let previous = F(2 ** low);
+  let previous = F[0] as number;
   let nonzeroLost = previous * updateBelow(2 ** (Math.max(low, format.emin) - p));
   for (let e = low; e <= high; e++) {
-    const next = e === high ? 1 : F(2 ** (e + 1));
+    const next = e === high ? 1 : (F[e + 1 - low] as number);
     const mass = Math.max(0, next - previous);
     previous = next;
     if (mass === 0) continue;
@@ -113,6 +112,18 @@ export function swampedShare(
   }
   lost += (1 - zeros) * nonzeroLost;
   return Math.min(1, Math.max(0, lost));
+}
+
+// P(|w| < 2^e) for e = low … high, per weight profile: every format and point of the schedule reads the same
+// edges of the same weights. A binade is [2^e, 2^(e+1)), so a weight exactly at 2^e belongs to binade e, not e − 1.
+const EDGES = new WeakMap<MagnitudeProfile, { low: number; values: Float64Array }>();
+function binadeEdges(weight: MagnitudeProfile, low: number, high: number): Float64Array {
+  const known = EDGES.get(weight);
+  if (known !== undefined && known.low === low && known.values.length === high - low + 1) return known.values;
+  const values = new Float64Array(high - low + 1);
+  for (let e = low; e <= high; e++) values[e - low] = fractionBelow(weight, 2 ** e * (1 - 2 ** -40));
+  EDGES.set(weight, { low, values });
+  return values;
 }
 
 /**

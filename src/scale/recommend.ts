@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
+import { energyBelowExceeds, limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
@@ -114,7 +114,7 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
       return 1 - none;
     },
     flushesTooMuch(scale: number, progress: number) {
-      return gradients.some((t) => energyBelow(scaleProfile(profileAt(t, progress), scale), limits.flushBound) > options.flushTolerance);
+      return gradients.some((t) => energyBelowExceeds(scaleProfile(profileAt(t, progress), scale), limits.flushBound, options.flushTolerance));
     },
   };
 }

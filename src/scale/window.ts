@@ -14,6 +14,8 @@ export interface ScaledTensorCurves {
   overflowRisk(log2Scale: number): number;
   /** share of the tensor's gradient energy flushed to zero at scale 2^k (nonincreasing in k) */
   flushedEnergy(log2Scale: number): number;
+  /** optional cheap bounds [low, high] on flushedEnergy: the search then integrates only where they do not decide */
+  flushedEnergyBounds?(log2Scale: number): readonly [number, number];
 }
 
 export interface WindowOptions {
@@ -74,7 +76,7 @@ export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options:
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
   const overflowOk = (k: number) => totalRisk(tensors, k) <= o.riskBudget;
-  const flushOk = (k: number) => worstFlush(tensors, k).share <= o.flushTolerance;
+  const flushOk = (k: number) => flushWithin(tensors, k, o.flushTolerance);
 
   // highest k with overflowOk (monotone: true then false as k grows)
   const highest = lastTrue(o.lowestLog2, o.highestLog2, overflowOk);
@@ -127,16 +129,40 @@ function worstRisk(tensors: readonly ScaledTensorCurves[], k: number): string | 
   return best;
 }
 
+// Whether every tensor's flushed share at k is within the tolerance (the worst share ≤ tolerance), deciding by the
+// bounds where they can.
+function flushWithin(tensors: readonly ScaledTensorCurves[], k: number, tolerance: number): boolean {
+  for (const t of tensors) {
+    if (t.flushedEnergyBounds) {
+      const [low, high] = t.flushedEnergyBounds(k);
+      if (high <= tolerance) continue;
+      if (low > tolerance) return false;
+    }
+    if (!(t.flushedEnergy(k) <= tolerance)) return false;
+  }
+  return true;
+}
+
 function worstFlush(tensors: readonly ScaledTensorCurves[], k: number): { id: string | null; share: number } {
+  // a tensor whose upper bound is below another's lower bound cannot be the worst: integrate only the others
+  const highs = new Float64Array(tensors.length).fill(Infinity);
+  let floor = -Infinity;
+  tensors.forEach((t, i) => {
+    if (!t.flushedEnergyBounds) return;
+    const [low, high] = t.flushedEnergyBounds(k);
+    highs[i] = high;
+    if (low > floor) floor = low;
+  });
   let id: string | null = null;
   let share = 0;
-  for (const t of tensors) {
+  tensors.forEach((t, i) => {
+    if ((highs[i] as number) < floor) return;
     const s = t.flushedEnergy(k);
     if (s > share || id === null) {
       share = Math.max(share, s);
       id = t.id;
     }
-  }
+  });
   return { id, share };
 }
 
