@@ -3,7 +3,8 @@
  * k, the input of the loss-scale window (src/scale/window.ts takes objects of this shape).
  */
 import type { TensorPrediction } from "../magnitude/types.js";
-import { energyBelow, energyBelowBounds, probabilityAnyAbove, scaleProfile } from "./profile.js";
+import { energyBelowBounds } from "./bounds.js";
+import { energyBelow, probabilityAnyAbove, scaleProfile } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 

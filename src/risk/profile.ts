@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, mixtureCrossing, overDraws, overDrawsBounds } from "./laws.js";
+import { elementLaw, mixtureCrossing, overDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -99,29 +99,6 @@ export function energyBelow(profile: MagnitudeProfile, t: number): number {
   const law = elementLaw(profile);
   if (isConstantLike(profile)) return fractionBelow(profile, t);
   return overDraws(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
-}
-
-/**
- * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the two extreme draws (it is
- * monotone in the scale): two evaluations instead of the integral, for searches that only compare the share with
- * a tolerance.
- */
-export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number, number] {
-  if (isEmpty(profile)) return [0, 0];
-  if (isConstantLike(profile)) {
-    const value = fractionBelow(profile, t);
-    return [value, value];
-  }
-  const law = elementLaw(profile);
-  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
-}
-
-/** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
-export function energyBelowExceeds(profile: MagnitudeProfile, t: number, level: number): boolean {
-  const [low, high] = energyBelowBounds(profile, t);
-  if (high <= level) return false;
-  if (low > level) return true;
-  return energyBelow(profile, t) > level;
 }
 
 // The levels of profileStatistics in binades from the rms depend on the element law, the element count, the

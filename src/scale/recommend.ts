@@ -5,7 +5,8 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowExceeds, limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
+import { energyBelowExceeds } from "../risk/bounds.js";
+import { limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";

@@ -1,0 +1,39 @@
+/**
+ * Cheap bounds on the draw integrals of src/risk/profile.ts, for searches that only compare a share with a
+ * tolerance (the loss-scale window, the dynamic-scale simulation). Internal to the risk and scale modules: not
+ * re-exported by src/risk/index.ts.
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { elementLaw, overDrawsBounds } from "./laws.js";
+import { energyBelow, fractionBelow, nonzeroElements } from "./profile.js";
+
+// the same tests as profile.ts makes before integrating
+function isEmpty(profile: MagnitudeProfile): boolean {
+  return !(profile.rms > 0) || !(nonzeroElements(profile) > 0);
+}
+function isConstantLike(profile: MagnitudeProfile): boolean {
+  return profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0));
+}
+
+/**
+ * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the two extreme draws (it is
+ * monotone in the scale): two evaluations instead of the integral, for searches that only compare the share with
+ * a tolerance.
+ */
+export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number, number] {
+  if (isEmpty(profile)) return [0, 0];
+  if (isConstantLike(profile)) {
+    const value = fractionBelow(profile, t);
+    return [value, value];
+  }
+  const law = elementLaw(profile);
+  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+}
+
+/** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
+export function energyBelowExceeds(profile: MagnitudeProfile, t: number, level: number): boolean {
+  const [low, high] = energyBelowBounds(profile, t);
+  if (high <= level) return false;
+  if (low > level) return true;
+  return energyBelow(profile, t) > level;
+}
