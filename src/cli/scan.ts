@@ -70,6 +70,8 @@ export const register: RegisterCommand = (program) => {
         total: Math.ceil(totalBytes / MIB),
         label: "scanning MiB",
         enabled: process.stderr.isTTY === true && totalBytes >= PROGRESS_BYTES,
+        // some terminals (and `script`) report 0 columns: draw for 80 then
+        stream: { isTTY: process.stderr.isTTY, columns: process.stderr.columns || 80, write: (text: string) => process.stderr.write(text) },
       });
       let reported = 0;
       let finishedFiles = 0;
