@@ -4,7 +4,7 @@
  */
 import { readFileSync } from "node:fs";
 import { workerData } from "node:worker_threads";
-import { check } from "../check.js";
+import { check, loadSpecMeasurements } from "../check.js";
 import type { CheckOptions } from "../risk/index.js";
 import { specJsonSchema } from "../spec/index.js";
 import { evaluateTask } from "./evaluate.js";
@@ -20,6 +20,7 @@ serveTasks((task: Parameters<typeof evaluateTask>[0]) =>
   evaluateTask(task, {
     readText: (file) => readFileSync(file, "utf8"),
     schema: lazySchema,
-    judge: (spec) => summarizeCheck(check(spec, options)),
+    // a spec's measured weights and statistics count here too (their read problems are reported by `headroom check`)
+    judge: async (spec) => summarizeCheck(check(spec, options, await loadSpecMeasurements(spec))),
   }),
 );
