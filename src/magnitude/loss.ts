@@ -70,11 +70,15 @@ export function lossSeed(
     const totalQ = ((C - 1) * wrongQ + rightQ) / C;
     const startLoss = Math.log(C) + s2 / 2;
     const perTerm = phase === "end" && finalLoss !== undefined ? finalLoss : startLoss;
+    // two samples' logits correlated by c share part of p; with labels independent across samples,
+    // E[δ_n δ_m] per element = E[p_n p_m] − 2E[p]/C + 1/C² = (e^(c·s²) − 1)/C² (log-normal p; derived)
+    const c = s2 > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2, 0), 1) : 0;
+    const sharedQ = ((Math.exp(c * s2) - 1) / (C * C)) * k * k;
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
       termValue: perTerm,
       terms: N,
-      gradient: { q: totalQ, zeroFraction: 0, shape: "gaussian", logVar: 0 },
+      gradient: { q: totalQ, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: Math.min(sharedQ, totalQ) },
       bulk: {
         gradient: {
           q: wrongQ,
@@ -97,7 +101,8 @@ export function lossSeed(
   const residual = phase === "end" && finalLoss !== undefined ? finalLoss : startResidual;
   const k = (2 * scale) / divisor;
   const q = residual * k * k;
-  const gradient: Gradient = { q, zeroFraction: 0, shape: "gaussian", logVar: 0 };
+  // targets independent of the outputs: the samples share only the outputs' shared part
+  const gradient: Gradient = { q, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, q) };
   return {
     value: loss.reduction === "mean" ? residual : residual * M,
     termValue: residual,

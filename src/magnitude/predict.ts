@@ -274,6 +274,10 @@ class Phase {
         branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
       }
       const result = rule.backward(this.ctx, layer, this.stash.get(layer.index), gradient, branchResults);
+      // rules that do not say otherwise keep the gradient's cross-sample correlation
+      if (result.input !== undefined && result.input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) {
+        result.input.shared = gradient.shared * (result.input.q / gradient.q);
+      }
       for (const inner of result.inner) {
         this.emit({
           id: this.build ? `${layer.name}/activation-gradient:${inner.suffix}` : "",

@@ -58,6 +58,11 @@ export interface Gradient {
   bound?: number;
   /** set by a transposed weight map: the width it produced and the κ counted, for the next activation to replace */
   fresh?: { width: number; kappa: number };
+  /**
+   * E[δ_n·δ_m] for two different samples of the batch (elementwise, averaged): the part of the gradient the samples
+   * share. It makes the weight gradient's batch sum partly coherent. Absent: 0.
+   */
+  shared?: number;
 }
 
 /** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */

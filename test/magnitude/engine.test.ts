@@ -143,15 +143,26 @@ describe("loss seeds (SCIENCE.md §2.1 output seed; DESIGN.md §3)", () => {
 });
 
 describe("weight gradients, workers and accumulation", () => {
-  test("a dense weight gradient is the incoherent sum N·E[x²]·E[δ²]; the coherent bracket is √N larger (SCIENCE.md §2.1)", () => {
+  test("a dense weight gradient on independent samples is the incoherent sum N·E[x²]·E[δ²]; the coherent bracket is √N larger (SCIENCE.md §2.1)", () => {
     const spec = makeSpec([dense("a", 32, he), act("r"), dense("out", 2, lecun)], { input: features(16, 5), ...training({ batch: 12 }) });
     const p = run(spec);
     const N = 12 * 5;
-    const x = ms(tensor(p, "r/activation"));
-    const delta = ms(tensor(p, "out/activation-gradient"));
-    const g = tensor(p, "out/weight-gradient");
+    const x = ms(tensor(p, "input/activation"));
+    const delta = ms(tensor(p, "a/activation-gradient"));
+    const g = tensor(p, "a/weight-gradient");
     expect(ms(g)).toBeCloseTo(N * x * delta, 18);
     expect(g.start.coherentRms! / g.start.rms).toBeCloseTo(Math.sqrt(N), 9);
+  });
+
+  test("samples that share part of their inputs and gradients make the sum partly coherent (between the brackets)", () => {
+    const layers = [];
+    for (let i = 0; i < 30; i++) layers.push(dense(`d${i}`, 128, he), act(`a${i}`));
+    const p = run(makeSpec([...layers, dense("out", 10, lecun)], { input: features(128), loss: crossEntropy(10), ...training({ batch: 64 }) }));
+    const g = tensor(p, "out/weight-gradient");
+    const incoherent = Math.sqrt(64 * ms(tensor(p, "a29/activation")) * ms(tensor(p, "out/activation-gradient")));
+    expect(g.start.rms).toBeGreaterThan(incoherent * Math.exp(-0.01));
+    expect(Math.sqrt(ms(g))).toBeGreaterThan(1.5 * incoherent);
+    expect(g.start.rms).toBeLessThan(g.start.coherentRms!);
   });
 
   test("accumulation divides every gradient by the steps; the combined weight gradient is A·W·q summed, ÷W² averaged", () => {

@@ -3,6 +3,7 @@ import { describe, expect, test } from "vitest";
 import { activationKappa, activationMoments, erf } from "../../src/ops/activation/moments.js";
 import { maxOfNormals } from "../../src/ops/pool/analytic.js";
 import { attentionRowSums } from "../../src/ops/attention/analytic.js";
+import { crossMoments } from "../../src/ops/activation/analytic.js";
 import { expectedMaxAbsProduct, expectedMaxNormal } from "../../src/magnitude/profile.js";
 
 describe("activationMoments at q = 1 (SCIENCE.md §2.9 table, checks 20–24)", () => {
@@ -127,5 +128,29 @@ describe("order statistics and tails (SCIENCE.md §4)", () => {
     expect(attentionRowSums(1000, true, 0).sumSquares).toBeCloseTo(h / 1000, 12);
     // one-hot attention when e^Var[s] exceeds the row length
     expect(attentionRowSums(16, false, 10).sumSquares).toBe(1);
+  });
+});
+
+describe("two-sample moments (the correlation map)", () => {
+  test("ReLU: the arc-cosine kernel E[φ(u)φ(v)] = (q/2π)(sin θ + (π − θ) cos θ) (Cho & Saul 2009): q/2π at c = 0, q/2 at c = 1", () => {
+    const m = activationMoments("relu", 2);
+    expect(crossMoments("relu", 0, 2, 0, m).value).toBeCloseTo(2 / (2 * Math.PI), 14);
+    expect(crossMoments("relu", 0, 2, 1, m).value).toBeCloseTo(1, 12);
+    expect(crossMoments("relu", 0, 2, 0, m).derivative).toBeCloseTo(0.25, 14);
+    expect(crossMoments("relu", 0, 2, 1, m).derivative).toBeCloseTo(0.5, 12);
+    // He init: the next layer's correlation c' = 2·E[φ(u)φ(v)]/q = (√(1 − c²) + (π − arccos c)·c)/π
+    const c = 0.3;
+    const expected = (Math.sqrt(1 - c * c) + (Math.PI - Math.acos(c)) * c) / Math.PI;
+    expect((2 * crossMoments("relu", 0, 1, c, activationMoments("relu", 1)).value) / 1).toBeCloseTo(expected, 14);
+  });
+
+  test("leaky ReLU and smooth activations are exact at c = 0 (E[φ]²) and c = 1 (E[φ²])", () => {
+    for (const [name, slope] of [["leaky-relu", 0.2], ["tanh", 0], ["gelu", 0], ["silu", 0]] as const) {
+      const m = activationMoments(name, 1.5, slope);
+      expect(crossMoments(name, slope, 1.5, 0, m).value).toBeCloseTo(m.mean * m.mean, 12);
+      expect(crossMoments(name, slope, 1.5, 1, m).value).toBeCloseTo(m.second, 12);
+      expect(crossMoments(name, slope, 1.5, 0, m).derivative).toBeCloseTo(m.derivativeMean ** 2, 12);
+      expect(crossMoments(name, slope, 1.5, 1, m).derivative).toBeCloseTo(m.derivativeSecond, 12);
+    }
   });
 });

@@ -19,6 +19,8 @@ export interface ActivationStash {
   /** share of input elements where φ' = 0 (a ReLU's negative half) */
   derivativeZeroFraction: number;
   kappaBackward: number;
+  /** E[φ'(u)·φ'(v)] for the pre-activations of two different samples (their correlation set by the input's shared part) */
+  derivativeCross: number;
   /** softmax: E[p²] */
   probabilitySecond?: number;
 }
@@ -46,6 +48,41 @@ function atZero(name: ActivationName, slope: number): [number, number] {
     case "softmax":
       return [0, 0];
   }
+}
+
+/**
+ * E[φ(u)φ(v)] and E[φ'(u)φ'(v)] for jointly Gaussian u, v of variance q and correlation c (two samples of a batch).
+ * ReLU and leaky ReLU: the arc-cosine kernel, (q/2π)[sin θ + (π − θ) cos θ] with cos θ = c (Cho & Saul 2009), and
+ * P(u > 0, v > 0) = (π − θ)/(2π) for the derivative. Others: the Hermite expansion Σ a_k² c^k with a_0 = E[φ],
+ * a_1² = q·E[φ']² kept exactly and the higher terms lumped as c²·(E[φ²] − a_0² − a_1²) (exact at c = 0 and 1);
+ * the derivative interpolates between E[φ']² and E[φ'²] (approximate).
+ */
+export function crossMoments(
+  name: ActivationName,
+  slope: number,
+  q: number,
+  c: number,
+  m: { mean: number; second: number; derivativeMean: number; derivativeSecond: number },
+): { value: number; derivative: number } {
+  if (name === "relu" || name === "leaky-relu") {
+    const a = name === "relu" ? 0 : slope;
+    const theta = Math.acos(c);
+    const positive = (q / (2 * Math.PI)) * (Math.sin(theta) + (Math.PI - theta) * c); // E[relu(u) relu(v)]
+    const both = (Math.PI - theta) / (2 * Math.PI); // P(u > 0, v > 0)
+    // leaky: φ(x) = relu(x) − a·relu(−x); E[relu(u) relu(−v)] = (q/2π)[sin θ − θ cos θ]
+    const mixed = (q / (2 * Math.PI)) * (Math.sin(theta) - theta * c);
+    const opposite = theta / (2 * Math.PI);
+    return {
+      value: positive * (1 + a * a) - 2 * a * mixed,
+      derivative: both * (1 + a * a) + 2 * a * opposite,
+    };
+  }
+  if (name === "identity") return { value: c * q, derivative: 1 };
+  const a0 = m.mean * m.mean;
+  const a1 = q * m.derivativeMean * m.derivativeMean;
+  const rest = Math.max(m.second - a0 - a1, 0);
+  const dRest = Math.max(m.derivativeSecond - m.derivativeMean * m.derivativeMean, 0);
+  return { value: a0 + a1 * c + rest * c * c, derivative: m.derivativeMean * m.derivativeMean + dRest * c * c };
 }
 
 /** Element shape of φ's output. */
@@ -85,15 +122,17 @@ export function pointwiseForward(
   let logVar = input.logVar;
   if (input.fresh !== undefined) logVar = Math.max(logVar + (kappa.forward - input.fresh.kappa) / input.fresh.width, 0);
   const { shape, bound } = outputShape(name, input);
-  // per-feature batch means: φ's mean, plus the input's own shared part passed on to first order through E[φ']
-  const shared = mean * mean + (input.shared === undefined ? 0 : m.derivativeMean * m.derivativeMean * input.shared);
+  // two samples' pre-activations u, v have correlation c = shared/q; E[φ(u)φ(v)] is the shared part of the output
+  const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
+  const cross = crossMoments(name, slope, qNonzero, correlation, m);
+  const shared = keep * keep * cross.value + (1 - keep * keep) * f0 * f0;
   const output: Signal = { q, mean, shared: Math.min(shared, q), zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
   if (bound !== undefined) output.bound = bound;
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
   return {
     output,
-    stash: { input, derivativeSecond, derivativeZeroFraction, kappaBackward: kappa.backward },
+    stash: { input, derivativeSecond, derivativeZeroFraction, kappaBackward: kappa.backward, derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0 },
     ratio: input.q > 0 ? q / input.q : 0,
     rule: () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
   };
@@ -104,8 +143,10 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   let logVar = output.logVar;
   if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
   const zeroFraction = 1 - (1 - stash.derivativeZeroFraction) * (1 - output.zeroFraction);
+  const gradient: Gradient = { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
+  if (output.shared !== undefined) gradient.shared = stash.derivativeCross * output.shared;
   return {
-    gradient: { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar },
+    gradient,
     ratio: stash.derivativeSecond,
     rule: () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`,
   };
@@ -177,6 +218,6 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         detail: () => `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
       },
     ],
-    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, probabilitySecond: second },
+    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, probabilitySecond: second },
   };
 }

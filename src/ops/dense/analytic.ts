@@ -72,21 +72,25 @@ export function linearBackward(
   inWidth: number,
 ): BackwardResult {
   const terms = ctx.batch * positionCount(layer.output);
+  // pairs of different terms add E[x_n x_m]·E[δ_n δ_m] each: the part of inputs and gradients the samples share
+  const crossPairs = terms * (terms - 1);
+  const sharedX = stash.input.shared ?? 0;
+  const sharedDelta = output.shared ?? 0;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",
-      q: terms * stash.input.q * output.q,
+      q: terms * stash.input.q * output.q + crossPairs * Math.max(sharedX * sharedDelta, 0),
       coherentQ: terms * terms * stash.input.q * output.q,
       terms,
       zeroFraction: 0,
       logVar: stash.input.logVar + output.logVar,
-      rule: () => `sum of ${terms} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${terms} products (batch × positions) of input and gradient, plus the part the samples share`,
     },
   ];
   if (maybeWeight(layer, "bias") !== undefined) {
     weightGradients.push({
       weight: "bias",
-      q: terms * output.q,
+      q: terms * output.q + crossPairs * Math.max(sharedDelta, 0),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: 0,
@@ -94,8 +98,10 @@ export function linearBackward(
       rule: () => `sum of ${terms} gradients (batch × positions)`,
     });
   }
+  const input = linearGradient(gain * output.q, output.logVar, inWidth);
+  if (output.shared !== undefined) input.shared = gain * output.shared;
   return {
-    input: linearGradient(gain * output.q, output.logVar, inWidth),
+    input,
     factors: [factor(gain, rule, SOURCES.backward)],
     inner: [],
     weightGradients,

@@ -122,6 +122,9 @@ export const normRule: AnalyticRule<NormStash> = {
       shape: "gaussian",
       logVar: output.logVar + (layer.family === "batch-norm" ? 0 : stash.input.logVar),
     };
+    // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
+    if (layer.family === "batch-norm") input.shared = 0;
+    else if (output.shared !== undefined) input.shared = ratio * output.shared;
     return {
       input,
       factors: [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],

@@ -110,7 +110,7 @@ export const poolRule: AnalyticRule<null> = {
     if (layer.family === "average-pool") {
       const ratio = share / k;
       return {
-        input: { ...output, q: output.q * ratio, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
+        input: { ...output, q: output.q * ratio, shared: (output.shared ?? 0) * ratio, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
         factors: [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
         inner: [],
         weightGradients: [],
@@ -118,7 +118,7 @@ export const poolRule: AnalyticRule<null> = {
     }
     const reached = Math.min(share, 1);
     return {
-      input: { ...output, q: output.q * share, zeroFraction: 1 - reached * (1 - output.zeroFraction) },
+      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share, zeroFraction: 1 - reached * (1 - output.zeroFraction) },
       factors: [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
       inner: [],
       weightGradients: [],

@@ -62,6 +62,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       zeroFraction: output.zeroFraction * g.zeroFraction,
       shape: "gaussian",
       logVar: sumLogVar(output.q, output.logVar, g.q, g.logVar, 1),
+      shared: (output.shared ?? 0) + (g.shared ?? 0),
     };
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
