@@ -99,6 +99,7 @@ export function describeLossScale(scale: AppliedLossScale): string {
         `inside the window ${power(window?.lowestLog2 ?? null)} to ${power(window?.highestLog2 ?? null)}` +
         (window?.lowerEdgeSetBy ? ` (below it ${window.lowerEdgeSetBy} flushes` : " (") +
         (window?.upperEdgeSetBy ? `${window?.lowerEdgeSetBy ? "; " : ""}above it ${window.upperEdgeSetBy} overflows)` : ")") +
+        ((window?.lowestLog2 ?? 1) <= 0 && 0 <= (window?.highestLog2 ?? -1) ? "; 1 (no scaling) lies in the window too" : "") +
         "."
       );
     case "none":
