@@ -138,6 +138,19 @@ describe("headroom batch exit codes and options", () => {
     expect(malformed.stderr).toMatch(/^headroom: --vary training\.batch: expected KEY=VALUE1,VALUE2/);
   });
 
+  test("check --vary checks each variant, named by its values; --md makes Markdown; a bad variant is reported at its line", () => {
+    const run = runCli(["check", join(small, "a.yaml"), "--md", "--vary", "training.batch=8,-3", "--vary", "precision.activations=binary16"]);
+    expect(run.stdout).toMatch(/^### headroom check: tiny-a \(training\.batch=8,precision\.activations=binary16\): /);
+    expect(run.stdout).toContain("| format | holds | verdict | why |");
+    expect(run.stdout).not.toContain("training.batch=-3,");
+    expect(run.stderr).toBe(`${join(small, "a.yaml")}:4:10: training.batch: must be at least 1, got -3 [training.batch=-3,precision.activations=binary16]\n`);
+    expect(run.status).toBe(2);
+    const json = runCli(["check", join(small, "a.yaml"), "--json", "--vary", "training.batch=4,64"]);
+    const parsed = JSON.parse(json.stdout) as { variant: string; result: { spec: { name: string } } }[];
+    expect(parsed.map((entry) => entry.variant)).toEqual(["training.batch=4", "training.batch=64"]);
+    expect(parsed[0]!.result.spec.name).toBe("tiny-a");
+  });
+
   test("--md prints a Markdown table", () => {
     const run = runCli(["batch", small, "--md"]);
     expect(run.stdout).toMatch(/^\*\*headroom batch\*\*: 2 specs: 2 fit/);

@@ -72,6 +72,13 @@ describe.skipIf(!HAVE_CHROMIUM)("the HTML report in chromium", () => {
     const shot = join(OUT, spec.replace(/\W+/g, "-") + ".png");
     await page.screenshot({ path: shot, fullPage: true });
     expect(readFileSync(shot).subarray(1, 4).toString()).toBe("PNG");
+    // printed: the charts shrink to the page instead of being cut off
+    await page.emulateMedia({ media: "print" });
+    const printed = await page.locator("svg.band-chart").first().boundingBox();
+    expect(printed!.width).toBeGreaterThan(300);
+    expect(printed!.width).toBeLessThanOrEqual(1100);
+    await page.pdf({ path: shot.replace(/\.png$/, ".pdf"), format: "A4" });
+    await page.emulateMedia({ media: "screen" });
     // a narrow screen: the page does not scroll sideways; wide charts scroll inside their frames
     await page.setViewportSize({ width: 380, height: 800 });
     const overflow = await page.evaluate<number>("document.documentElement.scrollWidth - document.documentElement.clientWidth");
