@@ -5,7 +5,8 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { elementLaw, overDrawsBounds } from "./laws.js";
-import { energyBelow, fractionBelow, nonzeroElements } from "./profile.js";
+import { anyOf } from "./_math.js";
+import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 
 // the same tests as profile.ts makes before integrating
 function isEmpty(profile: MagnitudeProfile): boolean {
@@ -36,4 +37,18 @@ export function energyBelowExceeds(profile: MagnitudeProfile, t: number, level: 
   if (high <= level) return false;
   if (low > level) return true;
   return energyBelow(profile, t) > level;
+}
+
+/**
+ * Bounds [low, high] on {@link probabilityAnyAbove}(profile, t) from the integrand at the two extreme draws (it is
+ * monotone in the scale).
+ */
+export function probabilityAnyAboveBounds(profile: MagnitudeProfile, t: number): [number, number] {
+  if (isEmpty(profile) || isConstantLike(profile)) {
+    const value = probabilityAnyAbove(profile, t);
+    return [value, value];
+  }
+  const law = elementLaw(profile);
+  const n = nonzeroElements(profile);
+  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => anyOf(law.above(r, t), n));
 }

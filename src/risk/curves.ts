@@ -2,9 +2,9 @@
  * How each gradient tensor reacts to a loss scale 2^k: its overflow risk and its flushed energy as functions of
  * k, the input of the loss-scale window (src/scale/window.ts takes objects of this shape).
  */
-import type { TensorPrediction } from "../magnitude/types.js";
-import { energyBelowBounds } from "./bounds.js";
-import { energyBelow, probabilityAnyAbove, scaleProfile } from "./profile.js";
+import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
+import { energyBelowBounds, probabilityAnyAboveBounds } from "./bounds.js";
+import { energyBelow, probabilityAnyAbove } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
@@ -15,6 +15,8 @@ export interface LossScaleCurves {
   overflowRisk(log2Scale: number): number;
   /** share of the tensor's squared norm flushed to zero at scale 2^k (nonincreasing in k) */
   flushedEnergy(log2Scale: number): number;
+  /** cheap bounds [low, high] on overflowRisk (the exact value twice once it is known) */
+  overflowRiskBounds(log2Scale: number): readonly [number, number];
   /** cheap bounds [low, high] on flushedEnergy (the exact value twice once it is known) */
   flushedEnergyBounds(log2Scale: number): readonly [number, number];
 }
@@ -29,22 +31,42 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
     .map((tensor) => {
       const overflow = new Map<number, number>();
       const flush = new Map<number, number>();
-      const worse = (k: number, f: (profile: TensorPrediction["start"]) => number): number =>
-        Math.max(f(scaleProfile(tensor.start, 2 ** k)), f(scaleProfile(tensor.end, 2 ** k)));
+      const flushBounds = new Map<number, readonly [number, number]>();
+      const overflowBounds = new Map<number, readonly [number, number]>();
+      const { start, end } = tensor;
+      const same = sameDistribution(start, end);
+      // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile
+      // against t·2^−k, exactly (powers of two), without a scaled copy per exponent
+      const worse = (f: (profile: MagnitudeProfile) => number): number => (same ? f(start) : Math.max(f(start), f(end)));
       return {
         id: tensor.id,
         overflowRisk(k: number): number {
           let value = overflow.get(k);
           if (value === undefined) {
-            value = worse(k, (p) => probabilityAnyAbove(p, limits.overflowLevel));
+            const level = limits.overflowLevel * 2 ** -k;
+            value = worse((p) => probabilityAnyAbove(p, level));
             overflow.set(k, value);
           }
           return value;
         },
+        overflowRiskBounds(k: number): readonly [number, number] {
+          const value = overflow.get(k);
+          if (value !== undefined) return [value, value];
+          let bounds = overflowBounds.get(k);
+          if (bounds === undefined) {
+            const level = limits.overflowLevel * 2 ** -k;
+            const a = probabilityAnyAboveBounds(start, level);
+            const b = same ? a : probabilityAnyAboveBounds(end, level);
+            bounds = [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+            overflowBounds.set(k, bounds);
+          }
+          return bounds;
+        },
         flushedEnergy(k: number): number {
           let value = flush.get(k);
           if (value === undefined) {
-            value = worse(k, (p) => energyBelow(p, limits.flushBound));
+            const bound = limits.flushBound * 2 ** -k;
+            value = worse((p) => energyBelow(p, bound));
             flush.set(k, value);
           }
           return value;
@@ -52,11 +74,31 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
         flushedEnergyBounds(k: number): readonly [number, number] {
           const value = flush.get(k);
           if (value !== undefined) return [value, value];
-          // the worse of two values lies between the worse of their lower and the worse of their upper bounds
-          const start = energyBelowBounds(scaleProfile(tensor.start, 2 ** k), limits.flushBound);
-          const end = energyBelowBounds(scaleProfile(tensor.end, 2 ** k), limits.flushBound);
-          return [Math.max(start[0], end[0]), Math.max(start[1], end[1])];
+          let bounds = flushBounds.get(k);
+          if (bounds === undefined) {
+            const level = limits.flushBound * 2 ** -k;
+            // the worse of two values lies between the worse of their lower and the worse of their upper bounds
+            const a = energyBelowBounds(start, level);
+            const b = same ? a : energyBelowBounds(end, level);
+            bounds = [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+            flushBounds.set(k, bounds);
+          }
+          return bounds;
         },
       };
     });
+}
+
+// Whether two profiles describe the same element distribution (the risk numbers read no other field).
+function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
+  return (
+    a === b ||
+    (a.rms === b.rms &&
+      a.log2Spread === b.log2Spread &&
+      a.shape === b.shape &&
+      a.elements === b.elements &&
+      a.zeroFraction === b.zeroFraction &&
+      a.bound === b.bound &&
+      a.elementLog2Spread === b.elementLog2Spread)
+  );
 }

@@ -243,6 +243,57 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   return Math.min(1, Math.max(0, sum));
 }
 
+// Far below the scale (every draw's t/r at most 1/2) the Gaussian shares are power series in a = t/r, and the draws
+// make a log-normal: E[a^m] = (t/rms)^m·e^{(m·spread·ln 2)²/2} (the moments of a log-normal). The series below are
+// the ones gaussianBelow and gaussianEnergyBelow sum node by node there, so the closed form is the draw integral
+// without the quadrature (it differs from the rule's sum in the last digits: the rule is exact for these to
+// rounding, as the mass of the shifted weights beyond ±9 is negligible for the terms that count).
+const SMALL_RATIO = 0.5;
+
+/**
+ * E over draws of erf(a/√2), a = t/r, log2 r ~ N(log2 rms, spread²), when every draw of the rule has a ≤ 1/2;
+ * NaN when some draw does not (the caller then integrates). `ratio` is t/rms.
+ */
+export function gaussianBelowOverDraws(ratio: number, spread: number): number {
+  if (!(ratio > 0) || !(ratio * 2 ** (spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
+  // erf(x) = (2/√π)·Σ (−1)^n x^{2n+1}/(n!(2n+1)) with x = a/√2 (Abramowitz & Stegun 7.1.5)
+  const sigma = spread * LN2;
+  const x = ratio / SQRT2;
+  const x2 = x * x;
+  let power = x;
+  let coefficient = 1;
+  let sum = 0;
+  for (let n = 0; n < 40; n++) {
+    const m = 2 * n + 1;
+    const term = (coefficient * power * Math.exp(0.5 * (m * sigma) ** 2)) / m;
+    sum += term;
+    if (Math.abs(term) < 1e-17 * Math.abs(sum)) return Math.min(1, Math.max(0, 1.1283791670955126 * sum));
+    coefficient *= -1 / (n + 1);
+    power *= x2;
+  }
+  return NaN;
+}
+
+/** E over draws of E[Z²; |Z| ≤ a] (the energy share below t), under the same condition as {@link gaussianBelowOverDraws}. */
+export function gaussianEnergyBelowOverDraws(ratio: number, spread: number): number {
+  if (!(ratio > 0) || !(ratio * 2 ** (spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
+  // 2φ(0)·Σ (−1/2)^k/k!·a^{2k+3}/(2k+3), as in gaussianEnergyBelow
+  const sigma = spread * LN2;
+  const a2 = ratio * ratio;
+  let power = ratio * a2;
+  let coefficient = 1;
+  let sum = 0;
+  for (let k = 0; k < 40; k++) {
+    const m = 2 * k + 3;
+    const term = (coefficient * power * Math.exp(0.5 * (m * sigma) ** 2)) / m;
+    sum += term;
+    if (Math.abs(term) < 1e-17 * Math.abs(sum)) return Math.min(1, Math.max(0, 2 * normalPdf(0) * sum));
+    coefficient *= -0.5 / (k + 1);
+    power *= a2;
+  }
+  return NaN;
+}
+
 /**
  * The integrand of {@link overDraws} at its two extreme draws, lowest value first: bounds of the integral for
  * a monotone f (the weights are positive and sum to 1), widened by 1e-12 for the rounding of the sum.

@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, mixtureCrossing, overDraws } from "./laws.js";
+import { elementLaw, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, mixtureCrossing, overDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -87,7 +87,19 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
     if (!(profile.log2Spread > 0)) return profile.rms <= t ? 1 : 0;
     return normalSf((Math.log2(profile.rms) - Math.log2(t)) / profile.log2Spread);
   }
+  if (gaussianBelowBound(profile, t)) {
+    const closed = gaussianBelowOverDraws(t / profile.rms, profile.log2Spread);
+    if (!Number.isNaN(closed)) return closed;
+  }
   return overDraws(profile.rms, profile.log2Spread, (r) => law.below(r, t));
+}
+
+// Whether the element law at threshold t is the Gaussian's for every draw (no bound at or below t), with a spread
+// (without one the law is evaluated once anyway).
+function gaussianBelowBound(profile: MagnitudeProfile, t: number): boolean {
+  if (!(profile.log2Spread > 0)) return false;
+  if (profile.shape !== "gaussian" && profile.shape !== "half-gaussian" && profile.shape !== "bounded") return false;
+  return profile.bound === undefined || !(profile.bound > 0) || t < profile.bound;
 }
 
 /**
@@ -98,6 +110,10 @@ export function energyBelow(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile)) return 0;
   const law = elementLaw(profile);
   if (isConstantLike(profile)) return fractionBelow(profile, t);
+  if (gaussianBelowBound(profile, t)) {
+    const closed = gaussianEnergyBelowOverDraws(t / profile.rms, profile.log2Spread);
+    if (!Number.isNaN(closed)) return closed;
+  }
   return overDraws(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
 }
 

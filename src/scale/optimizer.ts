@@ -226,7 +226,16 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
     const updates: UpdateLoss[] = schedule(optimizer).map(({ at, lr, firstStep }) => {
       const g = at === "end" ? gradient.end : gradient.start;
       const update = updateProfile(optimizer, g, lr, firstStep);
-      const below = (t: number) => fractionBelow(update, t);
+      // the four formats read the update's share below powers of two that mostly coincide
+      const shares = new Map<number, number>();
+      const below = (t: number) => {
+        let share = shares.get(t);
+        if (share === undefined) {
+          share = fractionBelow(update, t);
+          shares.set(t, share);
+        }
+        return share;
+      };
       const withoutMaster = swampedShare(w, below, weightFormat);
       const withBinary32Master = swampedShare(w, below, binary32);
       return {

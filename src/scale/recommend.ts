@@ -4,9 +4,9 @@
  */
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
-import type { Prediction, TensorPrediction } from "../magnitude/types.js";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowExceeds } from "../risk/bounds.js";
-import { limitsFor, lossScaleCurves, probabilityAnyAbove, scaleProfile, type RangeLimits } from "../risk/index.js";
+import { limitsFor, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
@@ -108,14 +108,28 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
 
 /** Overflow probability per step over all gradient tensors as they drift from their start to their end profiles. */
 function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions) {
+  // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
+  const points = new Map<number, MagnitudeProfile[]>();
+  const at = (progress: number): MagnitudeProfile[] => {
+    let profiles = points.get(progress);
+    if (profiles === undefined) {
+      profiles = gradients.map((t) => profileAt(t, progress));
+      points.set(progress, profiles);
+    }
+    return profiles;
+  };
+  // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
+  // scale takes), without a scaled copy per scale
   return {
     overflowProbability(scale: number, progress: number) {
+      const level = limits.overflowLevel / scale;
       let none = 1;
-      for (const t of gradients) none *= 1 - probabilityAnyAbove(scaleProfile(profileAt(t, progress), scale), limits.overflowLevel);
+      for (const p of at(progress)) none *= 1 - probabilityAnyAbove(p, level);
       return 1 - none;
     },
     flushesTooMuch(scale: number, progress: number) {
-      return gradients.some((t) => energyBelowExceeds(scaleProfile(profileAt(t, progress), scale), limits.flushBound, options.flushTolerance));
+      const bound = limits.flushBound / scale;
+      return at(progress).some((p) => energyBelowExceeds(p, bound, options.flushTolerance));
     },
   };
 }

@@ -14,6 +14,8 @@ export interface ScaledTensorCurves {
   overflowRisk(log2Scale: number): number;
   /** share of the tensor's gradient energy flushed to zero at scale 2^k (nonincreasing in k) */
   flushedEnergy(log2Scale: number): number;
+  /** optional cheap bounds [low, high] on overflowRisk: the search then integrates only where they do not decide */
+  overflowRiskBounds?(log2Scale: number): readonly [number, number];
   /** optional cheap bounds [low, high] on flushedEnergy: the search then integrates only where they do not decide */
   flushedEnergyBounds?(log2Scale: number): readonly [number, number];
 }
@@ -75,7 +77,7 @@ export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options:
   if (!(o.flushTolerance > 0 && o.flushTolerance < 1)) {
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
-  const overflowOk = (k: number) => totalRisk(tensors, k) <= o.riskBudget;
+  const overflowOk = (k: number) => riskWithin(tensors, k, o.riskBudget);
   const flushOk = (k: number) => flushWithin(tensors, k, o.flushTolerance);
 
   // highest k with overflowOk (monotone: true then false as k grows)
@@ -116,10 +118,38 @@ function totalRisk(tensors: readonly ScaledTensorCurves[], k: number): number {
   return Math.min(1, sum);
 }
 
+// Whether the union bound at k is within the budget, deciding by the summed bounds where they can.
+function riskWithin(tensors: readonly ScaledTensorCurves[], k: number, budget: number): boolean {
+  if (tensors.every((t) => t.overflowRiskBounds !== undefined)) {
+    let low = 0;
+    let high = 0;
+    for (const t of tensors) {
+      const [a, b] = t.overflowRiskBounds!(k);
+      low += a;
+      high += b;
+    }
+    // widened for the rounding of the sums
+    if (high * (1 + 1e-12) <= budget) return true;
+    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+  }
+  return totalRisk(tensors, k) <= budget;
+}
+
 function worstRisk(tensors: readonly ScaledTensorCurves[], k: number): string | null {
+  // a tensor whose upper bound is below another's lower bound cannot be the worst: integrate only the others
+  const highs = new Float64Array(tensors.length).fill(Infinity);
+  let floor = -Infinity;
+  tensors.forEach((t, i) => {
+    if (!t.overflowRiskBounds) return;
+    const [low, high] = t.overflowRiskBounds(k);
+    highs[i] = high;
+    if (low > floor) floor = low;
+  });
   let best: string | null = null;
   let bestRisk = -1;
-  for (const t of tensors) {
+  for (let i = 0; i < tensors.length; i++) {
+    if ((highs[i] as number) < floor) continue;
+    const t = tensors[i] as ScaledTensorCurves;
     const r = t.overflowRisk(k);
     if (r > bestRisk) {
       bestRisk = r;
