@@ -67,7 +67,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
     : null;
   // with no scale given, gradients are judged at the window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin
-  const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null && !answer.window.empty ? windowSummary(answer) : undefined;
+  const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null ? windowSummary(answer) : undefined;
   const judged = judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
   const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
   // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)

@@ -74,6 +74,8 @@ function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
  * @example lossScaleAnswer(prediction, plan).pick // => 1024
  */
 export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, options: LossScaleOptions = {}): LossScaleAnswer {
+  // the edges use the window's own budget and tolerance (whole-model, src/scale/window.ts); the pick sits at the
+  // centre, binades away from either edge, where the check's stricter per-tensor thresholds are met too
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
@@ -161,7 +163,7 @@ function describe(
     out.push(
       everywhere
         ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within bounds.`
-        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, and 1 is among them.`,
+        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, 1 among them; ${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides.`,
     );
   } else {
     out.push(

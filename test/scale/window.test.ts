@@ -67,7 +67,7 @@ describe("lossScaleWindow", () => {
   it("sums risks over tensors against the budget (union bound)", () => {
     // each tensor alone stays within 1e-4 at k = 3 (risk 6e-5) but two together do not
     const soft = (id: string): ScaledTensorCurves => ({ id, overflowRisk: (k) => (k <= 2 ? 0 : k === 3 ? 6e-5 : 1), flushedEnergy: () => 0 });
-    expect(lossScaleWindow([soft("a")]).highestLog2).toBe(3);
-    expect(lossScaleWindow([soft("a"), soft("b")]).highestLog2).toBe(2);
+    expect(lossScaleWindow([soft("a")], { riskBudget: 1e-4 }).highestLog2).toBe(3);
+    expect(lossScaleWindow([soft("a"), soft("b")], { riskBudget: 1e-4 }).highestLog2).toBe(2);
   });
 });
