@@ -5,7 +5,7 @@
  * and with a naive triple-loop product kept here only for comparison; GFLOP/s counts 2·m·n·k per product.
  */
 import { bench, describe } from "vitest";
-import { matmul, matmulTransposeA, matmulTransposeB } from "../src/simulate/matmul.js";
+import { matmul, matmulTransposeA, matmulTransposeB } from "../src/numeric/matmul.js";
 import { createRandom } from "../src/numeric/random.js";
 
 const BLOCKS = 48;

@@ -38,8 +38,9 @@ export function parseFormats(values: readonly string[] | undefined): FormatName[
 function parseLossScale(text: string | undefined): number | undefined {
   if (text === undefined) return undefined;
   const value = Number(text);
-  if (!(value > 0) || !Number.isFinite(value)) {
-    throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${text}"`);
+  // a loss scale is a power of two (Micikevicius et al. 2018 §3.2), so scaling and unscaling are exact
+  if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
+    throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
   }
   return value;
 }

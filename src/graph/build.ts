@@ -231,7 +231,7 @@ function place(
     case "embedding": {
       if (input.layout !== "tokens") return fail(`an embedding needs token input and must be the first layer; it gets ${describeShape(input)}`);
       if (!positive(spec.vocabulary) || !positive(spec.width)) return fail(`vocabulary and width must be whole numbers of at least 1`);
-      // torch's fan convention for a [vocabulary, width] table: fan-in = width, fan-out = vocabulary (common practice)
+      // the usual fan convention for a [vocabulary, width] table: fan-in = width, fan-out = vocabulary (common practice)
       weights.push(matrix("table", [spec.vocabulary, spec.width], spec.width, spec.vocabulary, spec.init));
       output = { layout: "features", positions: input.positions, features: spec.width };
       break;

@@ -19,7 +19,7 @@ import type {
   PoolLayer,
   ResidualLayer,
 } from "../spec/types.js";
-import type { RoundFunction } from "../simulate/matmul.js";
+import type { RoundFunction } from "../numeric/matmul.js";
 import {
   activationBackward,
   activationForward,

@@ -20,7 +20,7 @@ import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
 import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
-import type { RoundFunction } from "./matmul.js";
+import type { RoundFunction } from "../numeric/matmul.js";
 import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";

@@ -106,6 +106,10 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
   it("a bad loss scale", () => {
     const run = runCli(["check", "--loss-scale", "-4", "specs/deep-relu-he.yaml"]);
     expect(run.status).toBe(2);
-    expect(run.stderr).toMatch(/--loss-scale: expected a positive number/);
+    expect(run.stderr).toMatch(/--loss-scale: expected a power of two/);
+    const notPower = runCli(["check", "--loss-scale", "1000", "specs/deep-relu-he.yaml"]);
+    expect(notPower.status).toBe(2);
+    expect(notPower.stderr).toMatch(/--loss-scale: expected a power of two such as 1024 or 0.5, got "1000"/);
+    expect(notPower.stderr).not.toMatch(STACK);
   });
 });

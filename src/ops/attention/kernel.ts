@@ -11,7 +11,7 @@
  * that enter the softmax and "logits-gradient" the gradient with respect to them; "context" is the heads'
  * output before the output projection.
  */
-import { gemm, type RoundFunction } from "../../simulate/matmul.js";
+import { gemm, type RoundFunction } from "../../numeric/matmul.js";
 import { denseBackward, denseForward } from "../dense/kernel.js";
 import { softmaxBackward, softmaxForward } from "../activation/kernel.js";
 

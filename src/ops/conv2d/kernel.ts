@@ -3,7 +3,7 @@
  * [outChannels, inChannels, k, k], by im2col (each output pixel's receptive field unrolled into a column) and a
  * matrix product, the usual lowering of a convolution to a product (Chellapilla, Puri & Simard 2006).
  */
-import { matmul, matmulTransposeA, matmulTransposeB, type RoundFunction } from "../../simulate/matmul.js";
+import { matmul, matmulTransposeA, matmulTransposeB, type RoundFunction } from "../../numeric/matmul.js";
 
 /** The geometry of one convolution. */
 export interface Conv2dGeometry {

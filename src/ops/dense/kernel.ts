@@ -2,7 +2,7 @@
  * Float64 kernels of the dense (fully connected) family: y = x·Wᵀ + b over the last dimension.
  * The weight is stored output-first, [out, in] row-major, as the graph lists it.
  */
-import { matmul, matmulTransposeA, matmulTransposeB, type RoundFunction } from "../../simulate/matmul.js";
+import { matmul, matmulTransposeA, matmulTransposeB, type RoundFunction } from "../../numeric/matmul.js";
 
 /** y (rows×outFeatures) = x (rows×inFeatures) · wᵀ + bias, with w stored [outFeatures, inFeatures]. */
 export function denseForward(

@@ -3,7 +3,7 @@
  * feed-forward of Shazeer 2020 (eq. 5–6: GEGLU, SwiGLU with φ = GELU, SiLU). Weights are output-first:
  * gate and up [hidden, width], down [width, hidden]; no biases.
  */
-import type { RoundFunction } from "../../simulate/matmul.js";
+import type { RoundFunction } from "../../numeric/matmul.js";
 import { denseBackward, denseForward } from "../dense/kernel.js";
 import {
   activationBackward,

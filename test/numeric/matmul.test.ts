@@ -1,7 +1,7 @@
 import { describe, expect, it } from "vitest";
 import fc from "fast-check";
-import { gemm, matmul, matmulTransposeA, matmulTransposeB } from "../../src/simulate/matmul.js";
-import { randomArray, testRandom } from "./gradcheck.js";
+import { gemm, matmul, matmulTransposeA, matmulTransposeB } from "../../src/numeric/matmul.js";
+import { randomArray, testRandom } from "../simulate/gradcheck.js";
 
 /** The definition of the product, one dot product per element, for reference. */
 function reference(a: (i: number, p: number) => number, b: (p: number, j: number) => number, m: number, k: number, n: number): Float64Array {

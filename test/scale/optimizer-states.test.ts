@@ -1,0 +1,76 @@
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
+import { checkOptimizer } from "../../src/scale/optimizer.js";
+import type { OptimizerSpec, PrecisionPlan } from "../../src/spec/types.js";
+
+const adam: OptimizerSpec = {
+  kind: "adam",
+  learningRate: { peak: 1e-3, end: 1e-3 },
+  warmupSteps: 0,
+  momentum: 0,
+  betas: [0.9, 0.999],
+  epsilon: 1e-8,
+  weightDecay: 0,
+};
+
+function plan(states: PrecisionPlan["optimizerStates"]): PrecisionPlan {
+  return {
+    name: "test",
+    activations: "binary16",
+    weights: "binary16",
+    gradients: "binary16",
+    optimizerStates: states,
+    masterWeights: "binary32",
+    accumulate: "binary32",
+    overflow: "saturate",
+    flushSubnormals: false,
+    scaling: "none",
+  };
+}
+
+function tensor(id: string, role: TensorPrediction["role"], profile: MagnitudeProfile): TensorPrediction {
+  return { id, layer: "dense-0", layerIndex: 0, family: "dense", role, slot: role === "weight" ? "weights" : "gradients", shape: [profile.elements], start: profile, end: profile, ledger: [], source: "predicted" };
+}
+
+const constant = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "constant", rms, log2Spread: 0 });
+
+function prediction(gradientSize: number): Prediction {
+  return {
+    specName: "test",
+    tensors: [tensor("dense-0/weight", "weight", constant(0.05)), tensor("dense-0/weight-gradient", "weight-gradient", constant(gradientSize))],
+    hazards: [],
+    assumptions: [],
+  };
+}
+
+describe("checkOptimizer: Adam's states in the optimizer-state format", () => {
+  // common practice (SCIENCE.md §3.3 [X]): epsilon 1e-8 is below binary16's flush bound 2^-25 and rounds to 0;
+  // bfloat16 keeps it as 1.0011717677116394e-8
+  it("flags an epsilon of 1e-8 held in binary16 and keeps it in bfloat16", () => {
+    const half = checkOptimizer(adam, plan("binary16"), prediction(1e-2));
+    expect(half.epsilon).toEqual({ value: 1e-8, stored: 0, vanishes: true });
+    expect(half.verdict).not.toBe("fits");
+    expect(half.reasons.join(" ")).toMatch(/epsilon 1e-8 rounds to 0 in binary16/);
+    const brain = checkOptimizer(adam, plan("bfloat16"), prediction(1e-2));
+    expect(brain.epsilon?.vanishes).toBe(false);
+    expect(brain.epsilon?.stored).toBeCloseTo(1.0011717677116394e-8, 22);
+  });
+
+  // computed from IEEE 754-2019 binary16 limits: g² rounds to 0 when g² ≤ 2^-25, i.e. |g| ≤ 2^-12.5 ≈ 1.7263e-4
+  it("the settled second moment of a gradient below 2^-12.5 flushes in binary16, and above it does not", () => {
+    const below = checkOptimizer(adam, plan("binary16"), prediction(2 ** -12.5 * 0.99));
+    expect(below.tensors[0]!.secondMomentFlushed.settled).toBe(1);
+    const above = checkOptimizer(adam, plan("binary16"), prediction(2 ** -12.5 * 1.01));
+    expect(above.tensors[0]!.secondMomentFlushed.settled).toBe(0);
+    // the first step stores (1 − β2)·g²: flushed below sqrt(2^-25 / 0.001) ≈ 5.46e-3 (DESIGN.md §5 item 5)
+    expect(above.tensors[0]!.secondMomentFlushed.firstStep).toBe(1);
+    const large = checkOptimizer(adam, plan("binary16"), prediction(Math.sqrt(2 ** -25 / 1e-3) * 1.01));
+    expect(large.tensors[0]!.secondMomentFlushed.firstStep).toBe(0);
+  });
+
+  it("nothing flushes in binary32 states", () => {
+    const single = checkOptimizer(adam, plan("binary32"), prediction(1e-6));
+    expect(single.tensors[0]!.secondMomentFlushed.firstStep).toBe(0);
+    expect(single.epsilon?.vanishes).toBe(false);
+  });
+});
