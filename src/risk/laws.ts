@@ -235,8 +235,14 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   if (Math.abs(half - threeQuarter) <= COARSE_AGREEMENT * Math.abs(half) && ends <= COARSE_END_SHARE * Math.abs(half)) {
     return Math.min(1, Math.max(0, half));
   }
+  // f is monotone, so between two evaluated nodes of equal value (a share already 0 or 1, a probability that
+  // underflows) every node has that value: the sum is the Simpson sum, with the flat stretches not re-evaluated
   for (let i = 1; i < last; i++) {
-    if (i % HALF_STRIDE !== 0 && i % THREE_QUARTER_STRIDE !== 0) values[i] = f(rms * 2 ** (log2Spread * (z[i] as number)));
+    if (i % HALF_STRIDE === 0 || i % THREE_QUARTER_STRIDE === 0) continue;
+    const previous = Math.max(i - (i % HALF_STRIDE), i - (i % THREE_QUARTER_STRIDE));
+    const next = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
+    const before = values[previous] as number;
+    values[i] = before === values[next] ? before : f(rms * 2 ** (log2Spread * (z[i] as number)));
   }
   let sum = (w[0] as number) * low + (w[last] as number) * high;
   for (let i = 1; i < last; i++) sum += (w[i] as number) * (values[i] as number);

@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowExceeds } from "../risk/bounds.js";
+import { energyBelowExceeds, probabilityAnyAboveBounds } from "../risk/bounds.js";
 import { limitsFor, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
@@ -126,7 +126,11 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
     overflowProbability(scale: number, progress: number) {
       const level = limits.overflowLevel / scale;
       let none = 1;
-      for (const p of at(progress)) none *= 1 - probabilityAnyAbove(p, level);
+      for (const p of at(progress)) {
+        // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
+        if (probabilityAnyAboveBounds(p, level)[1] <= 2 ** -54) continue;
+        none *= 1 - probabilityAnyAbove(p, level);
+      }
       return 1 - none;
     },
     flushesTooMuch(scale: number, progress: number) {
