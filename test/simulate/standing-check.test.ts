@@ -12,8 +12,9 @@
  *
  * Two lists widen the check, each entry with its reason:
  * - KNOWINGLY_APPROXIMATE: where the comparison itself is uncertain (a few draws of a log-normal scale);
- * - KNOWN_MODEL_FAILURES: real disagreements of the magnitude engine found by this check, with the numbers and a
- *   diagnosis, left for the model to fix. They are reported, not asserted; every other tensor must pass.
+ * - KNOWN_MODEL_FAILURES: real disagreements of the magnitude engine found by this check, with the numbers, a
+ *   diagnosis and their own larger tolerance (the largest disagreement measured when the entry was last reviewed,
+ *   plus half a binade / 0.1 of share): they are held to it, so a change that makes them worse still fails.
  */
 import { readFileSync, readdirSync } from "node:fs";
 import { join } from "node:path";
@@ -59,6 +60,10 @@ interface KnownFailure {
   /** measured against predicted when this entry was written */
   numbers: string;
   diagnosis: string;
+  /** the larger rms tolerance these tensors are held to, in binades */
+  binades: number;
+  /** the larger tolerance of the zero-after-storage share */
+  zeroShare: number;
 }
 
 /** Real disagreements of the magnitude engine (found by this check), left for the model to fix. */
@@ -69,19 +74,16 @@ export const KNOWN_MODEL_FAILURES: KnownFailure[] = [
     numbers: "weight gradients of the middle layers: measured rms 0.55–0.9 binade above the prediction; 35–65% exact zeros against 0 predicted (weights and biases)",
     diagnosis:
       "deep in a ReLU network the inputs of a batch become strongly correlated (the correlation map of Poole et al. 2016 tends to 1 for ReLU), so a unit is on or off for the whole batch: whole rows and columns of the weight gradient are exactly zero and the sum over the batch is coherent, not the incoherent √N sum the model assumes (its coherentRms bracket covers it)",
+    binades: 1.75,
+    zeroShare: 0.8,
   },
   {
     spec: "deep-relu-glorot",
     ids: /weight-gradient(:bias)?$/,
     numbers: "weight and bias gradients: 6–45% exact zeros against 0 predicted; deep layers' weight gradients up to 1.4 binades above",
     diagnosis: "the same correlated-batch effect as in deep-relu-he: units on or off for the whole batch give structural zeros and coherent sums",
-  },
-  {
-    spec: "deep-sigmoid",
-    ids: /weight-gradient(:bias)?$/,
-    numbers: "every weight and bias gradient: measured rms 1.8–2.0 binades above the prediction (batch 16: a coherent sum is √16 = 2 binades above an incoherent one)",
-    diagnosis:
-      "sigmoid outputs are all positive (mean 1/2) and, deep in the stack, nearly the same for every sample, so Σ over the batch of input × gradient adds coherently; the model's incoherent sum N·E[x²]·E[δ²] assumes independent signs across the batch (its coherentRms bracket fits)",
+    binades: 2.0,
+    zeroShare: 0.55,
   },
   {
     spec: "residual-mlp-unscaled",
@@ -89,6 +91,8 @@ export const KNOWN_MODEL_FAILURES: KnownFailure[] = [
     numbers: "loss value −3.5 binades, output gradient −1.7 binades, every backward tensor 1.7–2.0 binades below the prediction",
     diagnosis:
       "the loss seed is predicted with no draw-to-draw spread (logVar 0), but under mean squared error it scales with the network output, whose scale here varies by more than a binade between draws (64 unnormalised residual blocks); the seed and every gradient should inherit the output's spread, and the loss value E[(y − t)²] is dominated by rare large draws. The ReLU outputs' zero share (0.42–0.56 in the median of 3 draws against 1/2) varies from draw to draw because the residual stream makes the batch correlated, so units are on or off for most of it",
+    binades: 4.0,
+    zeroShare: 0.5,
   },
   {
     spec: "deep-relu-he",
@@ -96,6 +100,8 @@ export const KNOWN_MODEL_FAILURES: KnownFailure[] = [
     numbers: "wrong-class logit gradients: measured rms 7.1e-3, predicted 1.6e-2 (−1.2 binades)",
     diagnosis:
       "the log-normal-sum approximation of the softmax (src/magnitude/loss.ts) hits its cap (1 − p)/√(C − 1) at logit variance ≈ 2 with 10 classes; E[p_j²] needs the exact Gaussian expectation there",
+    binades: 1.5,
+    zeroShare: 0.1,
   },
   {
     spec: "cnn-batchnorm",
@@ -103,6 +109,8 @@ export const KNOWN_MODEL_FAILURES: KnownFailure[] = [
     numbers: "gradients before the last stage: measured 0.6–3.7 binades above the prediction, growing toward the input",
     diagnosis:
       "average-pool's backward copies one gradient value to all 64 pixels of its window, so every later sum over pixels (batch-norm gain/bias gradients, conv weight gradients, batch-norm's backward statistics) is coherent; and the gradient through conv + batch-norm + ReLU stages grows (Yang et al. 2019: π/(π−1) per stage in squared norm, SCIENCE.md check value 29) where the model shrinks it",
+    binades: 3.0,
+    zeroShare: 0.2,
   },
   {
     spec: "transformer-encoder",
@@ -110,13 +118,8 @@ export const KNOWN_MODEL_FAILURES: KnownFailure[] = [
     numbers: "attention heads output: measured up to 2.3 binades above the prediction from the second block on; gradients 0.6–1 binade below",
     diagnosis:
       "the model averages values over positions as if positions were independent (E[o²] = E[v²]·Σp², i.e. /P for uniform attention); after the first block every position of the residual stream carries the same attention average, so positions are correlated and the average does not shrink (rank collapse, Dong et al. 2021). The gradient errors follow from the forward ones",
-  },
-  {
-    spec: "transformer-encoder",
-    ids: /attention-1\/activation:probabilities$/,
-    numbers: "attention probabilities: share zero in bfloat16 predicted near 1 from the log-normal contract, measured 0",
-    diagnosis:
-      "with elementLog2Spread in the tens of binades, the log-normal contract (m = log2 rms − s²·ln 2) puts the median probability far below bfloat16's smallest value; real softmax rows are bounded by 1 and their small entries are not that small",
+    binades: 3.25,
+    zeroShare: 0.1,
   },
 ];
 
@@ -163,10 +166,13 @@ describe("standing check: every example spec's prediction against a float64 simu
         const zeroOk = Number.isNaN(predictedZero) || Math.abs(measuredZero - predictedZero) <= zeroTolerance;
         if (rmsOk && zeroOk) continue;
         const line = `${row.id}: rms predicted ${row.predictedRms.toExponential(3)}, measured ${row.measured.median.rms.toExponential(3)} (${row.differenceBinades.toFixed(2)} binades, allowed ${binades.toFixed(2)}); zero after storage predicted ${predictedZero.toFixed(3)}, measured ${measuredZero.toFixed(3)} (allowed ±${zeroTolerance.toFixed(3)})`;
-        if (knownFailure(name, row.id) !== undefined) known.push(line);
-        else failures.push(line);
+        const knownCase = knownFailure(name, row.id);
+        if (knownCase === undefined) failures.push(line);
+        else if (Math.abs(row.differenceBinades) > knownCase.binades || Math.abs(measuredZero - predictedZero) > knownCase.zeroShare) {
+          failures.push(`${line}; beyond the known case's own tolerance (${knownCase.binades} binades, ±${knownCase.zeroShare})`);
+        } else known.push(line);
       }
-      if (known.length > 0) console.info(`standing check, ${name}: ${known.length} tensor(s) in KNOWN_MODEL_FAILURES still disagree`);
+      if (known.length > 0) console.info(`standing check, ${name}: ${known.length} tensor(s) of KNOWN_MODEL_FAILURES within their own larger tolerance`);
       expect(failures, `${name}: disagreements outside the known lists`).toEqual([]);
     });
   }
