@@ -2,14 +2,13 @@
  * Precision plans side by side: which ones train safely, what breaks first in the others, and what each costs
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
-import { check, needsLossScale } from "./check.js";
+import { check } from "./check.js";
 import { getFormat } from "./formats/index.js";
 import { buildGraph } from "./graph/index.js";
-import { predict } from "./magnitude/index.js";
 import type { CheckResult, Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
-import { checkOptimizer, type OptimizerCheck } from "./scale/optimizer.js";
-import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
+import type { OptimizerCheck } from "./scale/optimizer.js";
+import type { LossScaleAnswer } from "./scale/recommend.js";
 
 const base = { overflow: "saturate", flushSubnormals: false, scaling: "none" } as const;
 
@@ -105,20 +104,20 @@ export function comparePlans(spec: NetworkSpec, options: { plans?: readonly Prec
 
   const outcomes = plans.map((plan): PlanOutcome => {
     const planned: NetworkSpec = { ...spec, precision: plan };
-    const prediction = predict(built.graph, planned);
-    const answer = needsLossScale(plan) ? lossScaleAnswer(prediction, plan, { steps: options.steps ?? spec.training.horizon.steps, seed: options.seed ?? 1 }) : null;
-    const lossScale = plan.lossScale ?? (answer && answer.needed && answer.pick !== null ? answer.pick : null);
-    const result = check(planned, lossScale === null ? {} : { lossScale });
-    const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
-    const scaleVerdict: Verdict = answer && answer.window.empty ? "fails" : "fits";
-    const verdict = [result.verdict, optimizer.verdict, scaleVerdict].reduce((a, b) => (ORDER[b] > ORDER[a] ? b : a), "fits" as Verdict);
+    // one check per plan: it predicts, answers the loss scale (judging at its pick when the plan gives none) and
+    // checks the optimizer; its verdict folds all three in
+    const result = check(planned, options.seed === undefined ? {} : { seed: options.seed });
+    const answer = result.lossScaleAnswer;
+    const optimizer = result.optimizer;
+    const lossScale = result.lossScale.origin === "none" ? null : result.lossScale.value;
+    const verdict = result.verdict;
     const cost = planCost(spec, plan, result);
     return {
       plan,
       fromSpec: own.includes(plan),
       lossScale,
       lossScaleAnswer: answer,
-      checkVerdict: result.verdict,
+      checkVerdict: result.formats.reduce((worst, f) => (ORDER[f.verdict] > ORDER[worst] ? f.verdict : worst), "fits" as Verdict),
       optimizer,
       verdict,
       trainsSafely: verdict !== "fails",
