@@ -15,7 +15,7 @@ export class UserError extends Error {
 export const EXIT = {
   /** everything fits (or the command had nothing to judge) */
   ok: 0,
-  /** findings: a verdict of "fails" (check, compare, batch) or values a cast would lose (scan) */
+  /** findings: a verdict of "fails" (check, compare), "at risk" or "fails" (batch), values a cast would lose (scan) */
   findings: 1,
   /** bad input: arguments, a spec, a tensor file */
   inputError: 2,
