@@ -66,7 +66,9 @@ export function parseSpec(text: string, source: string): SpecResult {
     if (error instanceof ReferenceError || error instanceof RangeError) {
       return wholeFile(source, `refused: the document expands aliases too many times (more than ${MAX_ALIAS_COUNT}); reuse layers with blocks instead`);
     }
-    throw error;
+    // the YAML library checks merge keys (`<<`) only while building values, e.g. a merge of a scalar
+    const reason = error instanceof Error ? error.message : String(error);
+    return wholeFile(source, `yaml: ${reason.charAt(0).toLowerCase()}${reason.slice(1).replace(/\.$/, "")}`);
   }
   if (data === null || data === undefined) {
     return { ok: false, issues: [{ file: source, line: 1, column: 1, path: "", message: "the spec is empty: it needs at least input, training and layers" }] };

@@ -91,3 +91,14 @@ describe("parseSpec never throws", () => {
     }
   });
 });
+
+describe("parseSpec on a merge key with non-map sources", () => {
+  // found by the property test above (fast-check counterexample {"": {"<<": [""]}}): the YAML library only
+  // checks merge sources while building values, and that error must come back as an issue, not a throw
+  it("returns an issue instead of throwing", () => {
+    const result = parseSpec('"":\n  <<:\n    - ""\n', "merge.yaml");
+    expect(result.ok).toBe(false);
+    if (result.ok) return;
+    expect(result.issues[0]!.message).toMatch(/^yaml: merge sources must be maps/);
+  });
+});
