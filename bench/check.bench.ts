@@ -5,7 +5,8 @@ import { comparePlans } from "../src/compare.js";
 import { buildGraph } from "../src/graph/index.js";
 import { predict } from "../src/magnitude/index.js";
 import { parseSpec } from "../src/spec/index.js";
-import type { LayerSpec, NetworkSpec } from "../src/spec/types.js";
+import type { NetworkSpec } from "../src/spec/types.js";
+import { mlpSpec } from "./generated-specs.js";
 
 // The core check call (graph, prediction, risk, hazards, verdicts, loss-scale answer, optimizer) on every example
 // spec and on a generated 1,000-layer spec; parsing is done outside the timed region. Milliseconds per spec: read
@@ -20,35 +21,6 @@ const specs: [string, NetworkSpec][] = readdirSync("specs")
     return [name, parsed.spec];
   });
 
-/** 500 dense + ReLU pairs of width 256 (He initialisation, biases), binary16 with a binary32 master copy. */
-function denseStack(): NetworkSpec {
-  const layers: LayerSpec[] = [];
-  const he = { kind: "he", distribution: "normal", gain: 1 } as const;
-  for (let i = 0; i < 500; i++) {
-    layers.push({ family: "dense", name: `d${i}`, path: ["layers", 2 * i], width: 256, bias: true, init: he });
-    layers.push({ family: "activation", name: `a${i}`, path: ["layers", 2 * i + 1], activation: "relu", slope: 0 });
-  }
-  return {
-    source: "<bench>",
-    name: "dense-stack-1000",
-    description: "generated for the benchmark",
-    input: { kind: "features", features: 256, positions: 1, scale: 1 },
-    training: {
-      batch: 32,
-      loss: { kind: "mean-squared-error", reduction: "mean", targetScale: 1 },
-      workers: 2,
-      workerGradients: "average",
-      accumulationSteps: 2,
-      optimizer: { kind: "adamw", learningRate: { peak: 1e-3, end: 1e-5 }, warmupSteps: 10, momentum: 0.9, betas: [0.9, 0.999], epsilon: 1e-8, weightDecay: 0 },
-      horizon: { steps: 1000, weightGrowth: 1.1, finalLoss: 0.5 },
-    },
-    precision: { name: "half", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", overflow: "saturate", flushSubnormals: false, scaling: "none" },
-    plans: [],
-    blocks: {},
-    layers,
-  };
-}
-
 describe("check on each example spec", () => {
   for (const [name, spec] of specs) {
     bench(name, () => {
@@ -60,7 +32,7 @@ describe("check on each example spec", () => {
 });
 
 describe("1,000-layer dense + ReLU spec", () => {
-  const spec = denseStack();
+  const spec = mlpSpec();
   const built = buildGraph(spec);
   if (!built.ok) throw new Error("the generated spec does not build");
   const graph = built.graph;

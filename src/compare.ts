@@ -4,7 +4,6 @@
  */
 import { check } from "./check.js";
 import { getFormat } from "./formats/index.js";
-import { buildGraph } from "./graph/index.js";
 import type { CheckResult, Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import type { OptimizerCheck } from "./scale/optimizer.js";
@@ -99,8 +98,6 @@ export function comparePlans(spec: NetworkSpec, options: { plans?: readonly Prec
   // a standard plan that one of the spec's own plans repeats (same formats and options) is listed once, by the spec's name
   const plans =
     options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s)) && !own.some((p) => p.name === s.name)), ...own];
-  const built = buildGraph(spec);
-  if (!built.ok) throw new RangeError(`the spec's network cannot be built: ${built.issues.map((i) => i.message).join("; ")}`);
 
   const outcomes = plans.map((plan): PlanOutcome => {
     const planned: NetworkSpec = { ...spec, precision: plan };

@@ -4,6 +4,7 @@
  */
 import * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
+import { ACTIVATIONS } from "./types.js";
 
 /** Marks a union's own message as the one to show (see messages.ts). */
 export const FINAL_MESSAGE = "\u0001";
@@ -23,15 +24,7 @@ export const LAYER_TYPES = [
   "dense",
   "conv2d",
   "embedding",
-  "relu",
-  "leaky-relu",
-  "gelu",
-  "silu",
-  "tanh",
-  "sigmoid",
-  "softplus",
-  "identity",
-  "softmax",
+  ...ACTIVATIONS,
   "layer-norm",
   "rms-norm",
   "batch-norm",
@@ -49,15 +42,7 @@ export type LayerType = (typeof LAYER_TYPES)[number];
 
 /** Layer types that need no parameters and so may be written as a bare string (`- relu`). */
 export const BARE_LAYER_TYPES = [
-  "relu",
-  "leaky-relu",
-  "gelu",
-  "silu",
-  "tanh",
-  "sigmoid",
-  "softplus",
-  "identity",
-  "softmax",
+  ...ACTIVATIONS,
   "layer-norm",
   "rms-norm",
   "batch-norm",
