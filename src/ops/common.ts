@@ -80,3 +80,37 @@ export function sumLogVar(qa: number, va: number, qb: number, vb: number, shared
   const own = Math.max(vb - shared * va, 0);
   return (wa + wb * shared) ** 2 * va + wb * wb * own;
 }
+
+function clampCorrelation(c: number): number {
+  return Number.isFinite(c) ? Math.min(Math.max(c, 0), 1) : 0;
+}
+
+/** Correlation between two samples of a batch, same feature: the shared part over q (a signal's mean² when unset). */
+export function sampleCorrelationOf(s: Signal | Gradient): number {
+  if (!(s.q > 0)) return 0;
+  const shared = s.shared ?? ("mean" in s ? s.mean * s.mean : 0);
+  return clampCorrelation(shared / s.q);
+}
+
+/** Correlation between two positions of one sample, same feature; at least the cross-sample correlation when unset. */
+export function positionCorrelationOf(s: Signal | Gradient): number {
+  return s.positionCorrelation === undefined ? sampleCorrelationOf(s) : clampCorrelation(s.positionCorrelation);
+}
+
+/** Mean correlation over all pairs of the batch × positions terms (two positions of one sample, or two samples). */
+export function meanPairCorrelation(batch: number, positions: number, sampleCorrelation: number, positionCorrelation: number): number {
+  const terms = batch * positions;
+  if (terms < 2) return 0;
+  const pairs = (positions - 1) * clampCorrelation(positionCorrelation) + (batch - 1) * positions * clampCorrelation(sampleCorrelation);
+  return pairs / (terms - 1);
+}
+
+/**
+ * E[(Σ_t a_t)²] for a sum over batch × positions terms of second moment q each, whose pairs are correlated by
+ * ρ_position (two positions of one sample) or ρ_sample (two samples): N·q·(1 + (N − 1)·ρ̄), the variance of a sum of
+ * N correlated terms with ρ̄ their mean pairwise correlation (common practice).
+ */
+export function correlatedSum(batch: number, positions: number, q: number, sampleCorrelation: number, positionCorrelation: number): number {
+  const terms = batch * positions;
+  return terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation));
+}

@@ -45,6 +45,16 @@ export interface Signal {
    * where its gradient growth comes from (Yang et al. 2019). Absent: the elementwise mean², the usual case.
    */
   shared?: number;
+  /**
+   * correlation E[x_p·x_p']/E[x²] between two positions (tokens, pixels) of one sample, same feature. Absent: the
+   * cross-sample correlation (a part every sample shares is shared by the positions of one sample too).
+   */
+  positionCorrelation?: number;
+  /**
+   * share of features that are exactly zero at every one of the batch × positions terms of a step (a ReLU unit off
+   * for the whole batch): rows and columns of a weight gradient that are exactly zero
+   */
+  allZero?: number;
 }
 
 /** The backward moments of one gradient tensor. */
@@ -63,6 +73,10 @@ export interface Gradient {
    * share. It makes the weight gradient's batch sum partly coherent. Absent: 0.
    */
   shared?: number;
+  /** as Signal.positionCorrelation, for the gradient */
+  positionCorrelation?: number;
+  /** as Signal.allZero: share of features whose gradient is exactly zero at every term (a ReLU off for the whole batch) */
+  allZero?: number;
 }
 
 /** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */

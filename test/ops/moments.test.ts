@@ -3,7 +3,7 @@ import { describe, expect, test } from "vitest";
 import { activationKappa, activationMoments, erf } from "../../src/ops/activation/moments.js";
 import { maxOfNormals } from "../../src/ops/pool/analytic.js";
 import { attentionRowSums } from "../../src/ops/attention/analytic.js";
-import { crossMoments } from "../../src/ops/activation/analytic.js";
+import { allBelowZero, crossMoments } from "../../src/ops/activation/analytic.js";
 import { expectedMaxAbsProduct, expectedMaxNormal } from "../../src/magnitude/profile.js";
 
 describe("activationMoments at q = 1 (SCIENCE.md §2.9 table, checks 20–24)", () => {
@@ -151,6 +151,82 @@ describe("two-sample moments (the correlation map)", () => {
       expect(crossMoments(name, slope, 1.5, 1, m).value).toBeCloseTo(m.second, 12);
       expect(crossMoments(name, slope, 1.5, 0, m).derivative).toBeCloseTo(m.derivativeMean ** 2, 12);
       expect(crossMoments(name, slope, 1.5, 1, m).derivative).toBeCloseTo(m.derivativeSecond, 12);
+    }
+  });
+});
+
+/** Midpoint rule on [−12, 12]² (a grid of n² cells) for E[f(u)·f(v)], u, v standard Gaussians of correlation c: independent of the closed forms. */
+function gridCross(f: (x: number) => number, c: number, n = 1200): number {
+  const h = 24 / n;
+  const det = 1 - c * c;
+  let sum = 0;
+  for (let i = 0; i < n; i++) {
+    const u = -12 + (i + 0.5) * h;
+    const fu = f(u);
+    if (fu === 0) continue;
+    for (let j = 0; j < n; j++) {
+      const v = -12 + (j + 0.5) * h;
+      sum += fu * f(v) * Math.exp(-(u * u - 2 * c * u * v + v * v) / (2 * det));
+    }
+  }
+  return (sum * h * h) / (2 * Math.PI * Math.sqrt(det));
+}
+
+describe("the ReLU correlation map against numerical integration", () => {
+  // the arc-cosine map c' = (√(1 − c²) + (π − arccos c)·c)/π of two samples' correlation through a He-initialised
+  // ReLU layer (Cho & Saul 2009, arc-cosine kernel of degree 1; Poole et al. 2016, correlation map)
+  const relu = (x: number): number => (x > 0 ? x : 0);
+  for (const c of [-0.6, 0, 0.3, 0.8, 0.95]) {
+    test(`c = ${c}: 2·E[relu(u)relu(v)] from the kernel equals a 2-D grid integral`, () => {
+      const numeric = 2 * gridCross(relu, c);
+      const map = 2 * crossMoments("relu", 0, 1, c, activationMoments("relu", 1)).value;
+      expect(map).toBeCloseTo(numeric, 4);
+      expect(map).toBeCloseTo((Math.sqrt(1 - c * c) + (Math.PI - Math.acos(c)) * c) / Math.PI, 12);
+    });
+  }
+
+  test("c = 1 is the fixed point and every c < 1 moves toward it (Poole et al. 2016: the ReLU map has the single fixed point c* = 1)", () => {
+    const next = (c: number): number => 2 * crossMoments("relu", 0, 1, c, activationMoments("relu", 1)).value;
+    expect(next(1)).toBeCloseTo(1, 12);
+    let c = 0;
+    for (let layer = 0; layer < 200; layer++) {
+      const following = next(c);
+      expect(following).toBeGreaterThan(c);
+      expect(following).toBeLessThan(1);
+      c = following;
+    }
+    expect(c).toBeGreaterThan(0.999);
+  });
+});
+
+describe("allBelowZero: a ReLU unit off for every sample of a batch", () => {
+  test("independent samples give 2^−n and identical ones 1/2 (definition)", () => {
+    expect(allBelowZero(0, 16)).toBeCloseTo(2 ** -16, 15);
+    expect(allBelowZero(1, 16)).toBe(0.5);
+    expect(allBelowZero(-0.2, 3)).toBeCloseTo(1 / 8, 15);
+  });
+
+  test("two samples: Sheppard's orthant probability 1/4 + arcsin(c)/2π (Sheppard 1899)", () => {
+    for (const c of [0.1, 0.5, 0.9, 0.999]) expect(allBelowZero(c, 2)).toBeCloseTo(0.25 + Math.asin(c) / (2 * Math.PI), 9);
+  });
+
+  test("three equicorrelated samples: 1/8 + 3·arcsin(c)/4π (trivariate orthant probability, from memory; checked by the grid below)", () => {
+    for (const c of [0.2, 0.6, 0.95]) expect(allBelowZero(c, 3)).toBeCloseTo(1 / 8 + (3 * Math.asin(c)) / (4 * Math.PI), 9);
+  });
+
+  test("sixteen samples: equals a fine midpoint rule over the shared component (independent integration)", () => {
+    // P = ∫ φ(s)·Φ(−s·√(c/(1 − c)))^n ds on a plain grid (the code under test uses graded Gauss–Legendre panels)
+    const phiCdf = (x: number): number => 0.5 * (1 + erf(x / Math.SQRT2));
+    for (const c of [0.5, 0.9, 0.99]) {
+      const r = Math.sqrt(c / (1 - c));
+      const steps = 200000;
+      const h = 20 / steps;
+      let sum = 0;
+      for (let i = 0; i < steps; i++) {
+        const s = -10 + (i + 0.5) * h;
+        sum += (Math.exp(-0.5 * s * s) / Math.sqrt(2 * Math.PI)) * phiCdf(-r * s) ** 16;
+      }
+      expect(allBelowZero(c, 16)).toBeCloseTo(sum * h, 8);
     }
   });
 });

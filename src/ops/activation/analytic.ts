@@ -4,10 +4,12 @@
  * Softmax over the feature axis: probabilities are log-normal, p_j ≈ e^(z_j)/(n·e^(q/2)) for n features
  * (a log-normal sum approximation, good when e^q ≪ n), so E[p²] ≈ min(e^q/n², 1/n).
  */
-import { featureWidth, sampleElements } from "../../graph/shape.js";
+import { featureWidth, positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
-import { SOURCES, factor, fmt } from "../common.js";
+import { gaussianExpectationSplit } from "../../numeric/quadrature.js";
+import { normalLogCdf } from "../../numeric/normal.js";
+import { SOURCES, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
 
@@ -21,6 +23,10 @@ export interface ActivationStash {
   kappaBackward: number;
   /** E[φ'(u)·φ'(v)] for the pre-activations of two different samples (their correlation set by the input's shared part) */
   derivativeCross: number;
+  /** E[φ'(u)·φ'(v)] for two positions of one sample */
+  derivativeCrossPosition: number;
+  /** share of features whose φ' is zero at every term of the batch × positions (a ReLU off for the whole batch) */
+  allOff: number;
   /** softmax: E[p²] */
   probabilitySecond?: number;
 }
@@ -85,6 +91,19 @@ export function crossMoments(
   return { value: a0 + a1 * c + rest * c * c, derivative: m.derivativeMean * m.derivativeMean + dRest * c * c };
 }
 
+/**
+ * P(u_1 ≤ 0, …, u_n ≤ 0) for n standard Gaussians with common pairwise correlation c ≥ 0: writing
+ * u_i = √c·s + √(1 − c)·e_i, it is E_s[Φ(−s·√(c/(1 − c)))^n], a one-dimensional integral over the shared component s
+ * (the one-factor form of equicorrelated Gaussians, Dunnett & Sobel 1955, from memory; n = 2 is Sheppard's
+ * 1/4 + arcsin(c)/2π). 2^−n at c = 0, 1/2 at c = 1. Negative c is taken as 0.
+ */
+export function allBelowZero(c: number, n: number): number {
+  if (!(n >= 1)) return 1;
+  if (!(c > 0)) return Math.pow(2, -n);
+  if (c >= 1) return 0.5;
+  return gaussianExpectationSplit((x) => Math.exp(n * normalLogCdf(-x)), c / (1 - c));
+}
+
 /** Element shape of φ's output. */
 function outputShape(name: ActivationName, input: Signal): { shape: OpElementShape; bound?: number } {
   switch (name) {
@@ -109,6 +128,7 @@ export function pointwiseForward(
   name: ActivationName,
   slope: number,
   input: Signal,
+  positions = 1,
 ): { output: Signal; stash: ActivationStash; ratio: number; rule: Text } {
   const keep = 1 - input.zeroFraction;
   const qNonzero = keep > 0 ? input.q / keep : 0;
@@ -126,13 +146,29 @@ export function pointwiseForward(
   const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
   const cross = crossMoments(name, slope, qNonzero, correlation, m);
   const shared = keep * keep * cross.value + (1 - keep * keep) * f0 * f0;
+  // two positions of one sample: the same map at their correlation (Poole et al. 2016, correlation map)
+  const positionCorrelation = positionCorrelationOf(input);
+  const crossPosition = crossMoments(name, slope, qNonzero, positionCorrelation, m);
+  const positionShared = keep * keep * crossPosition.value + (1 - keep * keep) * f0 * f0;
   const output: Signal = { q, mean, shared: Math.min(shared, q), zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
+  if (q > 0) output.positionCorrelation = Math.min(positionShared / q, 1);
   if (bound !== undefined) output.bound = bound;
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
+  // a ReLU unit is off for the whole step when its pre-activation is ≤ 0 at every term
+  const allOff = name === "relu" && qNonzero > 0 ? allBelowZero(meanPairCorrelation(ctx.batch, positions, sampleCorrelationOf(input), positionCorrelation), ctx.batch * positions) : 0;
+  if (allOff > 0) output.allZero = allOff;
   return {
     output,
-    stash: { input, derivativeSecond, derivativeZeroFraction, kappaBackward: kappa.backward, derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0 },
+    stash: {
+      input,
+      derivativeSecond,
+      derivativeZeroFraction,
+      kappaBackward: kappa.backward,
+      derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0,
+      derivativeCrossPosition: keep * keep * crossPosition.derivative + (1 - keep * keep) * d0 * d0,
+      allOff,
+    },
     ratio: input.q > 0 ? q / input.q : 0,
     rule: () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
   };
@@ -145,6 +181,9 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   const zeroFraction = 1 - (1 - stash.derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
   if (output.shared !== undefined) gradient.shared = stash.derivativeCross * output.shared;
+  if (stash.derivativeSecond > 0) gradient.positionCorrelation = Math.min((stash.derivativeCrossPosition * positionCorrelationOf(output)) / stash.derivativeSecond, 1);
+  const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
+  if (allZero > 0) gradient.allZero = allZero;
   return {
     gradient,
     ratio: stash.derivativeSecond,
@@ -156,7 +195,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {
     const spec = layer.spec as ActivationLayer;
     if (spec.activation === "softmax") return softmaxForward(ctx, layer, input);
-    const result = pointwiseForward(ctx, spec.activation, spec.slope, input);
+    const result = pointwiseForward(ctx, spec.activation, spec.slope, input, positionCount(layer.input));
     return {
       output: result.output,
       factors: [factor(result.ratio, result.rule, SOURCE)],
@@ -218,6 +257,6 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         detail: () => `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
       },
     ],
-    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, probabilitySecond: second },
+    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second },
   };
 }

@@ -5,7 +5,19 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, maybeWeight, sharedOf, weightOf } from "../common.js";
+import {
+  SOURCES,
+  correlatedSum,
+  factor,
+  fmt,
+  linearGradient,
+  linearOutput,
+  maybeWeight,
+  positionCorrelationOf,
+  sampleCorrelationOf,
+  sharedOf,
+  weightOf,
+} from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -37,6 +49,8 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const outWidth = w.shape[0] ?? 1;
   // each output feature's mean over the batch is Σ_i W_ji·(mean of input i): its square averages to fan_in·var_w·shared_in
   const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
+  // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
+  if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
   const ratio = input.q > 0 ? q / input.q : 0;
   const rule = (): string => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
@@ -71,35 +85,38 @@ export function linearBackward(
   rule: Text,
   inWidth: number,
 ): BackwardResult {
-  const terms = ctx.batch * positionCount(layer.output);
-  // pairs of different terms add E[x_n x_m]·E[δ_n δ_m] each: the part of inputs and gradients the samples share
-  const crossPairs = terms * (terms - 1);
-  const sharedX = stash.input.shared ?? 0;
-  const sharedDelta = output.shared ?? 0;
+  const positions = positionCount(layer.output);
+  const terms = ctx.batch * positions;
+  // the batch × positions sum is partly coherent: pairs of terms add E[x x']·E[δ δ'], the parts samples and positions share
+  const x = stash.input;
+  const sum = (q: number, sample: number, position: number): number => correlatedSum(ctx.batch, positions, q, sample, position);
+  // a row (column) of the weight gradient is exactly zero when its unit's gradient (input) is zero at every term
+  const deltaZero = output.allZero ?? 0;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",
-      q: terms * stash.input.q * output.q + crossPairs * Math.max(sharedX * sharedDelta, 0),
-      coherentQ: terms * terms * stash.input.q * output.q,
+      q: sum(x.q * output.q, sampleCorrelationOf(x) * sampleCorrelationOf(output), positionCorrelationOf(x) * positionCorrelationOf(output)),
+      coherentQ: terms * terms * x.q * output.q,
       terms,
-      zeroFraction: 0,
-      logVar: stash.input.logVar + output.logVar,
-      rule: () => `sum of ${terms} products (batch × positions) of input and gradient, plus the part the samples share`,
+      zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
+      logVar: x.logVar + output.logVar,
+      rule: () => `sum of ${terms} products (batch × positions) of input and gradient, plus the parts samples and positions share`,
     },
   ];
   if (maybeWeight(layer, "bias") !== undefined) {
     weightGradients.push({
       weight: "bias",
-      q: terms * output.q + crossPairs * Math.max(sharedDelta, 0),
+      q: sum(output.q, sampleCorrelationOf(output), positionCorrelationOf(output)),
       coherentQ: terms * terms * output.q,
       terms,
-      zeroFraction: 0,
+      zeroFraction: deltaZero,
       logVar: output.logVar,
-      rule: () => `sum of ${terms} gradients (batch × positions)`,
+      rule: () => `sum of ${terms} gradients (batch × positions), plus the part they share`,
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
   if (output.shared !== undefined) input.shared = gain * output.shared;
+  input.positionCorrelation = positionCorrelationOf(output);
   return {
     input,
     factors: [factor(gain, rule, SOURCES.backward)],
