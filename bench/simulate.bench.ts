@@ -1,9 +1,10 @@
 /**
  * The simulator's matrix kernels on a realistic step: a 48-block residual MLP of width 256 with batch 64
  * (each block x + W2·relu(W1·x), He-initialised), forward, mean-squared-error gradient, backward and an SGD
- * update, one step per iteration. The same step runs with the blocked products of src/simulate/matmul.ts
+ * update, one step per iteration. The same step runs with the blocked products of src/numeric/matmul.ts
  * and with a naive triple-loop product kept here only for comparison; GFLOP/s counts 2·m·n·k per product.
  */
+import { loadavg } from "node:os";
 import { bench, describe } from "vitest";
 import { matmul, matmulTransposeA, matmulTransposeB } from "../src/numeric/matmul.js";
 import { createRandom } from "../src/numeric/random.js";
@@ -155,7 +156,8 @@ let naiveTeardowns = 0;
 function summary(): void {
   naiveTeardowns++;
   if (naiveTeardowns < 2 || timings.naive.length < ITERATIONS.naive || timings.blocked.length < ITERATIONS.blocked) return;
-  const lines = [`\nresidual MLP step: ${(FLOPS_PER_STEP / 1e9).toFixed(3)} GFLOP per step (median of timed steps)`];
+  const load = loadavg().map((l) => l.toFixed(1)).join(", ");
+  const lines = [`\nresidual MLP step: ${(FLOPS_PER_STEP / 1e9).toFixed(3)} GFLOP per step (median of timed steps; load average ${load})`];
   const rate = (ms: number): string => `${(FLOPS_PER_STEP / ms / 1e6).toFixed(2)} GFLOP/s`;
   for (const name of ["blocked", "naive"] as const) {
     const wall = median(timings[name].map((t) => t.wallMs));
@@ -169,7 +171,7 @@ function summary(): void {
 }
 
 describe(`residual MLP, ${BLOCKS} blocks, width ${WIDTH}, batch ${BATCH}: one step forward + backward`, () => {
-  bench("blocked products (src/simulate/matmul.ts)", timed("blocked", blocked), {
+  bench("blocked products (src/numeric/matmul.ts)", timed("blocked", blocked), {
     iterations: ITERATIONS.blocked,
     time: 0,
     warmupIterations: 1,

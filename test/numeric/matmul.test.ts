@@ -1,6 +1,7 @@
 import { describe, expect, it } from "vitest";
 import fc from "fast-check";
 import { gemm, matmul, matmulTransposeA, matmulTransposeB } from "../../src/numeric/matmul.js";
+import { computeTiles, TILE, tileWorkspace } from "../../src/numeric/simd.js";
 import { randomArray, testRandom } from "../simulate/gradcheck.js";
 
 /** The definition of the product, one dot product per element, for reference. */
@@ -21,13 +22,14 @@ function expectClose(actual: Float64Array, expected: Float64Array): void {
 }
 
 describe("blocked matrix products", () => {
-  // sizes that cross the 4×4 tile, the 64-row block and the 256-long inner block, with ragged edges
+  // sizes that cross the 4×4 tile, the 64-row block, the 256-long inner block and the 512-column block, with ragged edges
   it.each([
     [1, 1, 1],
     [3, 5, 2],
     [70, 300, 9],
     [64, 256, 256],
     [5, 513, 67],
+    [3, 40, 530],
   ])("A·B, A·Bᵀ and Aᵀ·B equal the definition for m=%i, k=%i, n=%i", (m, k, n) => {
     const rnd = testRandom(m * 1000 + k + n);
     const a = randomArray(rnd, m * k);
@@ -45,6 +47,89 @@ describe("blocked matrix products", () => {
     for (let i = 0; i < m; i++) for (let p = 0; p < k; p++) at[p * m + i] = a[i * k + p]!;
     matmulTransposeA(at, b, c, m, k, n);
     expectClose(c, ab);
+  });
+
+  // The blocked kernels against a plain triple loop over the stored layouts, for every transpose variant and
+  // sizes that are odd, ragged against the 4×4 tile and the 64-row, 256-long and 512-column blocks, 1×n and n×1.
+  // Tolerance 1e-12 relative to Σ|a·b| per output: summing in another order moves a dot product by at most a
+  // few ulps of that sum (common practice; the inner-product error bound of Higham 2002 §3.1, from memory).
+  const dims = fc.oneof(fc.integer({ min: 1, max: 9 }), fc.integer({ min: 1, max: 80 }), fc.constantFrom(1, 63, 64, 65, 255, 256, 257));
+  // at most about 10⁶ multiply-adds per case, so that the reference loop stays quick
+  const sizes = fc
+    .tuple(dims, fc.oneof(dims, fc.integer({ min: 250, max: 600 })), dims)
+    .map(([m, k, n]) => [m, Math.max(1, Math.min(k, Math.floor(1e6 / (m * n)))), n] as const);
+  it.each(["A·B", "A·Bᵀ", "Aᵀ·B"] as const)("%s equals a plain triple loop within 1e-12 relative, with and without adding into C", (variant) => {
+    fc.assert(
+      fc.property(sizes, fc.boolean(), fc.integer(), ([m, k, n], add, seed) => {
+        const rnd = testRandom(seed);
+        const a = randomArray(rnd, m * k);
+        const b = randomArray(rnd, k * n);
+        const c = randomArray(rnd, m * n);
+        const expected = Float64Array.from(c);
+        const scale = new Float64Array(m * n);
+        // strides of element (i, p) of A and (p, j) of B in the layout each variant stores them in
+        const [aRow, aStep] = variant === "Aᵀ·B" ? [1, m] : [k, 1];
+        const [bStep, bColumn] = variant === "A·Bᵀ" ? [1, k] : [n, 1];
+        for (let i = 0; i < m; i++)
+          for (let j = 0; j < n; j++) {
+            let s = 0;
+            let size = 0;
+            for (let p = 0; p < k; p++) {
+              const term = a[i * aRow + p * aStep]! * b[p * bStep + j * bColumn]!;
+              s += term;
+              size += Math.abs(term);
+            }
+            expected[i * n + j] = add ? expected[i * n + j]! + s : s;
+            scale[i * n + j] = size + (add ? Math.abs(c[i * n + j]!) : 0);
+          }
+        const product = variant === "A·B" ? matmul : variant === "A·Bᵀ" ? matmulTransposeB : matmulTransposeA;
+        product(a, b, c, m, k, n, add);
+        for (let i = 0; i < c.length; i++) if (!(Math.abs(c[i]! - expected[i]!) <= 1e-12 * scale[i]!)) return false;
+        return true;
+      }),
+      { numRuns: 60 },
+    );
+  });
+
+  it("gives the same bits on every run, whatever was computed before (deterministic)", () => {
+    const rnd = testRandom(77);
+    const [m, k, n] = [37, 700, 530];
+    const a = randomArray(rnd, m * k);
+    const b = randomArray(rnd, k * n);
+    const first = new Float64Array(m * n);
+    matmulTransposeB(a, b, first, m, k, n);
+    const other = new Float64Array(5 * 3);
+    matmul(randomArray(rnd, 5 * 9), randomArray(rnd, 9 * 3), other, 5, 9, 3);
+    const second = new Float64Array(m * n);
+    matmulTransposeB(a, b, second, m, k, n);
+    for (let i = 0; i < first.length; i++) expect(Object.is(first[i], second[i])).toBe(true);
+  });
+
+  it("computes the tiles the same after the workspace has grown", () => {
+    // one 4×4 tile from packed panels (kc = 3), before and after growing the kernel's memory past its start size
+    const kc = 3;
+    const run = (w: Float64Array): number[] => {
+      for (let p = 0; p < kc; p++)
+        for (let r = 0; r < TILE; r++) {
+          w[p * TILE + r] = p + r; // A panel: row r, step p
+          w[16 + p * TILE + r] = p - r; // B panel: column r, step p
+        }
+      computeTiles(false, 1, 1, kc, 0, 16, 32, TILE);
+      return Array.from(w.subarray(32, 32 + TILE * TILE));
+    };
+    const before = run(tileWorkspace(64));
+    const grown = tileWorkspace(tileWorkspace(64).length + 1);
+    expect(grown.length).toBeGreaterThan(64);
+    const after = run(grown);
+    // tile (i, j) = Σ_p (p + i)(p − j), the definition of the product
+    const expected = Array.from({ length: TILE * TILE }, (_, t) => {
+      const [i, j] = [Math.floor(t / TILE), t % TILE];
+      let s = 0;
+      for (let p = 0; p < kc; p++) s += (p + i) * (p - j);
+      return s;
+    });
+    expect(before).toEqual(expected);
+    expect(after).toEqual(expected);
   });
 
   it("adds into C when asked, and reads operands through offsets and strides", () => {
