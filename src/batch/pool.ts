@@ -3,6 +3,11 @@
  * order, whatever order they finish in. A task that throws, or a worker that dies, gives a failed
  * outcome for that task only; the pool replaces the worker and carries on.
  *
+ * Tasks travel in chunks, and a worker answers a whole chunk in one message: every message wakes the
+ * other thread, and on a machine with as many workers as cores each wake-up of the main thread takes
+ * a core from a worker. Each worker writes the task it is running into a shared cell, so a worker
+ * that dies still names the task that killed it without a message per task.
+ *
  * Node 20 cannot start a worker from a .ts file, so the caller passes the URL of a built .js worker
  * that calls {@link serveTasks} (src/batch/worker.ts, built to dist/batch/worker.js).
  */
@@ -18,19 +23,34 @@ export interface PoolOptions {
   workers?: number;
   /** passed to every worker as `workerData` (structured-cloned once per worker) */
   workerData?: unknown;
-  /** tasks sent ahead to each worker, so it never waits for the next message (default 2) */
+  /** chunks sent ahead to each worker, so it never waits for the next message (default 2) */
   inFlight?: number;
+  /** the most tasks in one chunk (default 8); chunks shrink near the end so the workers finish together */
+  chunk?: number;
   /** called as each task settles, in finishing order (for progress bars) */
   onSettled?: (index: number, outcome: TaskOutcome<unknown>) => void;
 }
 
-/** Messages between the pool and a worker. */
-export type ToWorker<T> = { id: number; task: T };
-export type FromWorker<R> = { id: number; ok: true; value: R } | { id: number; ok: false; error: string };
+/** Messages between the pool and a worker: first the shared cell, then chunks of tasks. */
+export type ToWorker<T> = { running: Int32Array } | { tasks: { id: number; task: T }[] };
+/** The answer to one task. */
+export type TaskReply<R> = { id: number; ok: true; value: R } | { id: number; ok: false; error: string };
+/** A worker's message: the answers to one chunk, in the chunk's order. */
+export type FromWorker<R> = { replies: TaskReply<R>[] };
 
 /** The default pool size: one worker per core the process may use. */
 export function defaultWorkers(): number {
   return Math.max(1, availableParallelism());
+}
+
+/** The size of the next chunk: a share of what is left, so the last chunks are small, within 1..most. */
+function chunkSize(left: number, workers: number, most: number): number {
+  return Math.max(1, Math.min(most, Math.floor(left / (4 * workers))));
+}
+
+function positiveInteger(name: string, value: number): number {
+  if (!Number.isInteger(value) || value < 1) throw new RangeError(`${name} must be a positive integer: ${value}`);
+  return value;
 }
 
 /**
@@ -38,15 +58,15 @@ export function defaultWorkers(): number {
  * Never rejects because of a task or a worker; it rejects only for a bad argument (RangeError).
  */
 export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options: PoolOptions = {}): Promise<TaskOutcome<R>[]> {
-  const size = options.workers ?? defaultWorkers();
-  if (!Number.isInteger(size) || size < 1) throw new RangeError(`workers must be a positive integer: ${size}`);
-  const inFlight = options.inFlight ?? 2;
-  if (!Number.isInteger(inFlight) || inFlight < 1) throw new RangeError(`inFlight must be a positive integer: ${inFlight}`);
+  const size = positiveInteger("workers", options.workers ?? defaultWorkers());
+  const inFlight = positiveInteger("inFlight", options.inFlight ?? 2);
+  const most = positiveInteger("chunk", options.chunk ?? 8);
   const outcomes: (TaskOutcome<R> | undefined)[] = new Array(tasks.length);
   if (tasks.length === 0) return [];
+  const workers = Math.min(size, tasks.length);
 
   let next = 0; // the next task not yet sent
-  const requeued: number[] = []; // tasks sent to a worker that died before running them
+  const requeued: number[] = []; // tasks sent to a worker that died before answering them
   let settled = 0;
   let failedStarts = 0; // workers in a row that died before finishing any task
   let startError: string | undefined;
@@ -73,15 +93,21 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
     const start = (): void => {
       const worker = new Worker(workerUrl, { workerData: options.workerData });
       live.add(worker);
-      const pending: number[] = []; // task indices sent to this worker, oldest first
+      // the id + 1 of the task the worker is running, 0 between tasks (written by serveTasks)
+      const running = new Int32Array(new SharedArrayBuffer(4));
+      worker.postMessage({ running } satisfies ToWorker<T>);
+      const pending: number[][] = []; // chunks sent to this worker and not answered, oldest first
       let finishedAny = false;
       let gone = false;
       const feed = (): void => {
         while (pending.length < inFlight) {
-          const index = takeTask();
-          if (index === undefined) break;
-          pending.push(index);
-          worker.postMessage({ id: index, task: tasks[index] as T } satisfies ToWorker<T>);
+          const chunk: number[] = [];
+          const count = chunkSize(tasks.length - settled - pending.flat().length, workers, most);
+          let index: number | undefined;
+          while (chunk.length < count && (index = takeTask()) !== undefined) chunk.push(index);
+          if (chunk.length === 0) break;
+          pending.push(chunk);
+          worker.postMessage({ tasks: chunk.map((id) => ({ id, task: tasks[id] as T })) } satisfies ToWorker<T>);
         }
       };
       const die = (reason: string): void => {
@@ -89,15 +115,15 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
         gone = true;
         live.delete(worker);
         void worker.terminate();
-        // a worker runs its tasks one after another: the oldest pending task is the one that killed it
-        const culprit = pending.shift();
-        requeued.unshift(...pending);
+        const culprit = Atomics.load(running, 0) - 1;
+        requeued.unshift(...pending.flat().filter((index) => index !== culprit));
+        pending.length = 0;
         if (finishedAny) failedStarts = 0;
         else {
           failedStarts += 1;
           startError = reason;
         }
-        if (culprit !== undefined) settle(culprit, { ok: false, error: `worker stopped: ${reason}` });
+        if (culprit >= 0) settle(culprit, { ok: false, error: `worker stopped: ${reason}` });
         if (failedStarts >= 2) {
           // the worker script itself cannot start: running it again would fail the same way
           let index: number | undefined;
@@ -106,13 +132,12 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
         }
         if (remaining() && settled < tasks.length) start();
       };
-      worker.on("message", (message: FromWorker<R>) => {
-        const at = pending.indexOf(message.id);
-        if (at >= 0) pending.splice(at, 1);
+      worker.on("message", ({ replies }: FromWorker<R>) => {
+        pending.shift();
         finishedAny = true;
         failedStarts = 0;
-        settle(message.id, message.ok ? { ok: true, value: message.value } : { ok: false, error: message.error });
-        feed();
+        for (const reply of replies) settle(reply.id, reply.ok ? { ok: true, value: reply.value } : { ok: false, error: reply.error });
+        if (!gone && settled < tasks.length) feed();
       });
       worker.on("error", (error: unknown) => die(error instanceof Error ? error.message : String(error)));
       worker.on("messageerror", (error: unknown) => die(`a message could not be read: ${String(error)}`));
@@ -122,6 +147,6 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
       feed();
     };
 
-    for (let i = 0; i < Math.min(size, tasks.length); i++) start();
+    for (let i = 0; i < workers; i++) start();
   });
 }

@@ -5,7 +5,7 @@ import { runPool, type TaskOutcome } from "../../src/batch/pool.js";
 const WORKER = new URL("./fixtures/test-worker.mjs", import.meta.url);
 const BROKEN = new URL("./fixtures/broken-worker.mjs", import.meta.url);
 
-type Task = { kind: "square" | "throw" | "exit" | "wait"; n: number; ms?: number };
+type Task = { kind: "square" | "throw" | "exit" | "wait" | "later"; n: number; ms?: number };
 
 describe("runPool", () => {
   test("returns outcomes in input order even when later tasks finish first", async () => {
@@ -49,6 +49,25 @@ describe("runPool", () => {
     });
   });
 
+  test("in chunks, a dying worker fails only its running task; the rest of its chunk is run again", async () => {
+    const tasks: Task[] = Array.from({ length: 100 }, (_, i): Task => ({ kind: i === 10 || i === 61 ? "exit" : "square", n: i }));
+    const settledAt: number[] = [];
+    const outcomes = await runPool<Task, { square: number }>(WORKER, tasks, { workers: 2, chunk: 6, onSettled: (i) => settledAt.push(i) });
+    expect(settledAt.sort((a, b) => a - b)).toEqual(tasks.map((_, i) => i));
+    outcomes.forEach((o, i) => {
+      if (i === 10 || i === 61) expect(o).toEqual({ ok: false, error: "worker stopped: exited with code 7" });
+      else expect(o).toEqual({ ok: true, value: { n: i, square: i * i, offset: 0 } });
+    });
+  });
+
+  test("a worker runs asynchronous tasks one at a time, in the order sent", async () => {
+    // later tasks wait less: run at once, they would finish in reverse order
+    const tasks: Task[] = Array.from({ length: 6 }, (_, i): Task => ({ kind: "later", n: i, ms: 60 - 10 * i }));
+    const outcomes = await runPool<Task, { n: number; at: number }>(WORKER, tasks, { workers: 1, chunk: 3, inFlight: 2 });
+    const times = outcomes.map((o) => (o.ok ? o.value.at : NaN));
+    for (let i = 1; i < times.length; i++) expect(times[i]!).toBeGreaterThanOrEqual(times[i - 1]!);
+  });
+
   test("passes workerData to every worker", async () => {
     const outcomes = await runPool<Task, { offset: number }>(WORKER, [{ kind: "square", n: 1 }], { workerData: { offset: 5 } });
     expect(outcomes).toEqual([{ ok: true, value: { n: 1, square: 1, offset: 5 } }]);
@@ -71,5 +90,6 @@ describe("runPool", () => {
   test("refuses a pool size that is not a positive integer", async () => {
     await expect(runPool(WORKER, [1], { workers: 0 })).rejects.toThrow(RangeError);
     await expect(runPool(WORKER, [1], { workers: 1.5 })).rejects.toThrow(RangeError);
+    await expect(runPool(WORKER, [1], { chunk: 0 })).rejects.toThrow(RangeError);
   });
 });
