@@ -4,7 +4,7 @@
  * re-exported by src/risk/index.ts.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, overDrawsBounds } from "./laws.js";
+import { elementLaw, overDrawsBounds, overDrawsInnerBounds } from "./laws.js";
 import { anyOf } from "./_math.js";
 import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 
@@ -17,9 +17,9 @@ function isConstantLike(profile: MagnitudeProfile): boolean {
 }
 
 /**
- * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the two extreme draws (it is
- * monotone in the scale): two evaluations instead of the integral, for searches that only compare the share with
- * a tolerance.
+ * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the extreme draws and at ±4
+ * standard deviations (it is monotone in the scale): four evaluations instead of the integral, for searches that
+ * only compare the share with a tolerance.
  */
 export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number, number] {
   if (isEmpty(profile)) return [0, 0];
@@ -28,7 +28,8 @@ export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number
     return [value, value];
   }
   const law = elementLaw(profile);
-  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+  // shares are compared with tolerances of 1e-3 and more: the inner bounds decide most of them
+  return overDrawsInnerBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
 }
 
 /** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
