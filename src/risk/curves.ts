@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowBounds, probabilityAnyAboveBounds } from "./bounds.js";
-import { energyBelow, probabilityAnyAbove } from "./profile.js";
+import { energyBelow, probabilityAnyAbove, sameDistribution } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
@@ -87,18 +87,4 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
         },
       };
     });
-}
-
-// Whether two profiles describe the same element distribution (the risk numbers read no other field).
-function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
-  return (
-    a === b ||
-    (a.rms === b.rms &&
-      a.log2Spread === b.log2Spread &&
-      a.shape === b.shape &&
-      a.elements === b.elements &&
-      a.zeroFraction === b.zeroFraction &&
-      a.bound === b.bound &&
-      a.elementLog2Spread === b.elementLog2Spread)
-  );
 }

@@ -227,6 +227,20 @@ export function profileRisk(
   };
 }
 
+/** Whether two profiles describe the same element distribution (the risk numbers read no other field). */
+export function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
+  return (
+    a === b ||
+    (a.rms === b.rms &&
+      a.log2Spread === b.log2Spread &&
+      a.shape === b.shape &&
+      a.elements === b.elements &&
+      a.zeroFraction === b.zeroFraction &&
+      a.bound === b.bound &&
+      a.elementLog2Spread === b.elementLog2Spread)
+  );
+}
+
 /** A copy of the profile with its scale multiplied by a factor (a loss scale, a per-tensor scale). */
 export function scaleProfile(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
   if (factor === 1) return profile;

@@ -7,6 +7,7 @@ import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitud
 import {
   profileRisk,
   profileStatistics,
+  sameDistribution,
   scaleProfile,
   type ProfileRisk,
   type ProfileStatistics,
@@ -66,11 +67,10 @@ export function tensorStatistics(
   thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
 ): TensorStatistics {
   const factor = lossScaleFactor(tensor.role, lossScale);
-  return {
-    factor,
-    start: profileStatistics(scaleProfile(tensor.start, factor), thresholds),
-    end: profileStatistics(scaleProfile(tensor.end, factor), thresholds),
-  };
+  const start = profileStatistics(scaleProfile(tensor.start, factor), thresholds);
+  // many tensors end the horizon as they start (weights and activations without growth): compute once
+  const end = sameDistribution(tensor.start, tensor.end) ? start : profileStatistics(scaleProfile(tensor.end, factor), thresholds);
+  return { factor, start, end };
 }
 
 /**
@@ -126,7 +126,7 @@ export function tensorFormatRisk(
     };
   };
   const start = evaluate(tensor.start, statistics.start);
-  const end = evaluate(tensor.end, statistics.end);
+  const end = sameDistribution(tensor.start, tensor.end) && statistics.start === statistics.end ? start : evaluate(tensor.end, statistics.end);
   const worst = worseOf(start.risk, end.risk);
   const findings = options.judged ? tensorFindings(tensor, limits, worst, options) : [];
   return {
