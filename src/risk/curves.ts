@@ -19,6 +19,8 @@ export interface LossScaleCurves {
   overflowRiskBounds(log2Scale: number): readonly [number, number];
   /** cheap bounds [low, high] on flushedEnergy (the exact value twice once it is known) */
   flushedEnergyBounds(log2Scale: number): readonly [number, number];
+  /** rough guesses of the exponents where this tensor's overflow and flushing reach their limits (search starts) */
+  edgeGuessesLog2: { overflow: number; flush: number };
 }
 
 /**
@@ -38,8 +40,18 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
       // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile
       // against t·2^−k, exactly (powers of two), without a scaled copy per exponent
       const worse = (f: (profile: MagnitudeProfile) => number): number => (same ? f(start) : Math.max(f(start), f(end)));
+      // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
+      // once the bound comes within a few binades of the rms (rough: only the search's starting point)
+      const rmsLog2 = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
+      const lowRmsLog2 = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
+      const spread = Math.max(start.log2Spread, end.log2Spread, 0);
+      const edgeGuessesLog2 = {
+        overflow: Math.floor(Math.log2(limits.overflowLevel) - rmsLog2 - 2 - 3 * spread),
+        flush: Math.ceil(Math.log2(limits.flushBound) - lowRmsLog2 + 4 + 3 * spread),
+      };
       return {
         id: tensor.id,
+        edgeGuessesLog2,
         overflowRisk(k: number): number {
           let value = overflow.get(k);
           if (value === undefined) {
