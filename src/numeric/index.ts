@@ -8,3 +8,4 @@ export * from "./extremes.js";
 export * from "./spread.js";
 export * from "./meanField.js";
 export * from "./logspace.js";
+export * from "./softmax.js";

@@ -1,0 +1,129 @@
+/**
+ * Moments of the softmax of Gaussian logits, exactly (to quadrature accuracy): for C independent logits
+ * z_j ~ N(0, s²) and p_1 = e^(z_1)/Σ_k e^(z_k), the mean E[p_1] (= 1/C, a check), the second moment E[p_1²] and the
+ * expected log-sum-exp E[ln Σ_k e^(z_k)] (the cross-entropy loss at initialisation, since E[z_y] = 0).
+ *
+ * Method: negative moments through the Laplace transform (Cressie, Davis, Folks & Policello 1981, "The
+ * moment-generating function and negative integer moments", The American Statistician 35(3)):
+ * 1/x^n = (1/Γ(n))·∫_0^∞ t^(n−1)·e^(−t·x) dt, and ln x = ∫_0^∞ (e^(−t) − e^(−t·x))/t dt (Frullani's integral).
+ * With x = e^(z_1) + S and S = Σ_(k≥2) e^(z_k) independent of z_1, the expectation of e^(n·z_1)/x^n factors into the
+ * transform of one log-normal term: E[p_1^n] = (1/Γ(n))·∫ t^(n−1)·L_n(t)·L_0(t)^(C−1) dt with
+ * L_m(t) = E[e^(m·s·Z)·exp(−t·e^(s·Z))], Z ~ N(0, 1), and E[ln Σ e^z] = ∫ (e^(−t) − L_0(t)^C)/t dt. The class count
+ * enters only as a power, so the cost does not grow with C.
+ *
+ * Quadrature: both integrals are taken by the trapezoid rule on the whole line (u = ln t, and Z), which converges
+ * geometrically for integrands analytic in a strip (Trefethen & Weideman 2014, "The exponentially convergent
+ * trapezoidal rule", SIAM Review 56(3), §5). exp(−t·e^(s(x+iy))) stays bounded for |y| < π/(2s), so a step of
+ * 0.3/s in Z keeps the discretisation error near e^(−π²/0.3) ≈ 1e-14; u has a strip of half-width π/2 and takes a
+ * step of 0.25.
+ */
+import { expectedMaxNormal } from "./extremes.js";
+
+/** Moments of the softmax of C independent N(0, s²) logits. */
+export interface SoftmaxMoments {
+  /** E[p_j] for one class: 1/C (returned as computed, a check of the quadrature) */
+  mean: number;
+  /** E[p_j²] for one class */
+  second: number;
+  /** E[ln Σ_k e^(z_k)], the expected cross-entropy at initialisation (labels independent of the logits) */
+  logSumExp: number;
+}
+
+const Z_RANGE = 9; // φ(9) ≈ 1e-18
+/**
+ * Above this logit variance (s = 20) the grids grow as s² and the softmax is one-hot to within a few per cent:
+ * E[p²] → 1/C and E[ln Σ e^z] → s·E[max of C normals].
+ */
+const ONE_HOT_VARIANCE = 400;
+/** Below this logit variance the lattice would need U_STEP/(U_STEP·s) points per step; the expansion is exact to 1e-8. */
+const SMALL_VARIANCE = 1e-4;
+const U_STEP = 0.25;
+const cache = new Map<string, SoftmaxMoments>();
+
+/**
+ * Exact moments of the softmax of `classes` independent N(0, variance) logits (method in the module comment).
+ * Returns NaN fields for a negative or non-finite variance or fewer than one class; a variance of 0 gives the
+ * uniform softmax exactly. Results are memoised.
+ * @example gaussianSoftmaxMoments(0.5, 2).second // E[sigmoid(Z)²] = 0.2933790359 (SCIENCE.md §2.9, q = 1)
+ */
+export function gaussianSoftmaxMoments(variance: number, classes: number): SoftmaxMoments {
+  if (!(variance >= 0) || !Number.isFinite(variance) || !(classes >= 1) || !Number.isFinite(classes)) {
+    return { mean: NaN, second: NaN, logSumExp: NaN };
+  }
+  const C = classes;
+  if (variance === 0 || C === 1) return { mean: 1 / C, second: 1 / (C * C), logSumExp: Math.log(C) };
+  if (variance < SMALL_VARIANCE) {
+    // p ≈ (1 + z − z̄)/C to first order (derived): E[p²] = (1 + s²(1 − 1/C))/C², E[ln Σ e^z] = ln C + s²(1 − 1/C)/2,
+    // relative error O(s⁴)
+    const spread = variance * (1 - 1 / C);
+    return { mean: 1 / C, second: (1 + spread) / (C * C), logSumExp: Math.log(C) + spread / 2 };
+  }
+  if (variance > ONE_HOT_VARIANCE) {
+    // one-hot limit: the largest logit takes the whole mass, and the log-sum-exp is the largest logit
+    return { mean: 1 / C, second: 1 / C, logSumExp: Math.sqrt(variance) * expectedMaxNormal(C) };
+  }
+  const key = `${variance}|${C}`;
+  const hit = cache.get(key);
+  if (hit !== undefined) return hit;
+  const s = Math.sqrt(variance);
+  // Z grid x_i = −Z_RANGE + i·h with s·h = U_STEP/k, so that every u + s·x_i falls on one lattice of spacing
+  // U_STEP/k and the transcendental parts are evaluated once per lattice point
+  const k = Math.ceil(U_STEP / Math.min(0.3, U_STEP * s));
+  const spacing = U_STEP / k;
+  const h = spacing / s;
+  const n = 2 * Math.ceil(Z_RANGE / h) + 1;
+  const weight = new Float64Array(n);
+  let total = 0;
+  for (let i = 0; i < n; i++) {
+    const x = (i - (n - 1) / 2) * h;
+    weight[i] = Math.exp(-0.5 * x * x);
+    total += weight[i] as number;
+  }
+  // normalised to sum to exactly 1, so that L_0 ≤ 1 and its power stays finite
+  for (let i = 0; i < n; i++) weight[i] = (weight[i] as number) / total;
+  // u = ln t: below `low` every integrand is below e^(−37) (small-t forms t·C·e^(s²/2) and t²·e^(2s²));
+  // above `high` L_0(t) ≈ Φ(−u/s) and e^(−t) have vanished
+  const low = -40 - Math.log(C) - variance;
+  const steps = Math.ceil((10 * s + 45 + Math.log(C) + variance) / U_STEP);
+  // lattice v_j = low − s·x_max + j·spacing, y = e^v: 1 − e^(−y), y·e^(−y), y²·e^(−y)
+  const latticeLength = steps * k + n;
+  const base = low - s * ((n - 1) / 2) * h;
+  const a0 = new Float64Array(latticeLength);
+  const a1 = new Float64Array(latticeLength);
+  const a2 = new Float64Array(latticeLength);
+  for (let j = 0; j < latticeLength; j++) {
+    const y = Math.exp(base + j * spacing);
+    const e = Math.exp(-y);
+    a0[j] = -Math.expm1(-y);
+    if (e > 0) {
+      a1[j] = y * e;
+      a2[j] = y * y * e;
+    }
+  }
+  let mean = 0;
+  let second = 0;
+  let logSumExp = 0;
+  for (let m = 0; m < steps; m++) {
+    const t = Math.exp(low + m * U_STEP);
+    const offset = m * k;
+    let oneMinusL0 = 0; // 1 − L_0(t), summed directly so that small t keeps its relative accuracy
+    let l1 = 0; // t·L_1(t)
+    let l2 = 0; // t²·L_2(t)
+    for (let i = 0; i < n; i++) {
+      const w = weight[i] as number;
+      oneMinusL0 += w * (a0[offset + i] as number);
+      l1 += w * (a1[offset + i] as number);
+      l2 += w * (a2[offset + i] as number);
+    }
+    const logL0 = oneMinusL0 < 1 ? Math.log1p(-oneMinusL0) : -Infinity;
+    const others = Math.exp((C - 1) * logL0); // L_0(t)^(C−1): the transform of S
+    mean += l1 * others; // t·L_1·L_0^(C−1) dt/t·(t/t)
+    second += l2 * others; // t·L_2·L_0^(C−1)·t du
+    // (e^(−t) − L_0^C)/t · t du = (1 − L_0^C) − (1 − e^(−t))
+    logSumExp += -Math.expm1(C * logL0) + Math.expm1(-t);
+  }
+  const result = { mean: mean * U_STEP, second: second * U_STEP, logSumExp: logSumExp * U_STEP };
+  if (cache.size > 4096) cache.clear();
+  cache.set(key, result);
+  return result;
+}

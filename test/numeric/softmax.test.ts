@@ -1,0 +1,95 @@
+/**
+ * Softmax moments of Gaussian logits (src/numeric/softmax.ts) against values from outside the method: the
+ * two-class case, where the softmax is a sigmoid of N(0, 2s²) and SCIENCE.md §2.9 gives the Gaussian expectations;
+ * the small-variance expansion; the many-class limit; and a seeded Monte Carlo.
+ */
+import { describe, expect, it } from "vitest";
+import { createRandom, gaussianSoftmaxMoments } from "../../src/numeric/index.js";
+
+const rel = (a: number, b: number): number => Math.abs(a / b - 1);
+
+/** Seeded Monte Carlo of E[p_1], E[p_1²], E[ln Σ e^z] and the standard errors of the first two. */
+function monteCarlo(variance: number, classes: number, samples: number, seed: number) {
+  const random = createRandom(seed);
+  const s = Math.sqrt(variance);
+  let m1 = 0;
+  let m2 = 0;
+  let m4 = 0;
+  let lse = 0;
+  for (let r = 0; r < samples; r++) {
+    const z1 = s * random.normal();
+    let sum = Math.exp(z1);
+    for (let j = 1; j < classes; j++) sum += Math.exp(s * random.normal());
+    const p = Math.exp(z1) / sum;
+    m1 += p;
+    m2 += p * p;
+    m4 += p ** 4;
+    lse += Math.log(sum);
+  }
+  m1 /= samples;
+  m2 /= samples;
+  m4 /= samples;
+  return { mean: m1, second: m2, logSumExp: lse / samples, secondError: Math.sqrt((m4 - m2 * m2) / samples) };
+}
+
+describe("gaussianSoftmaxMoments", () => {
+  it("two classes: E[p²] is the sigmoid's E[φ²] at q = 2s² (SCIENCE.md §2.9 [X]: 0.2639555776, 0.2933790359, 0.3485736226 at q = 0.25, 1, 4)", () => {
+    expect(gaussianSoftmaxMoments(0.125, 2).second).toBeCloseTo(0.2639555776, 9);
+    expect(gaussianSoftmaxMoments(0.5, 2).second).toBeCloseTo(0.2933790359, 9);
+    expect(gaussianSoftmaxMoments(2, 2).second).toBeCloseTo(0.3485736226, 9);
+  });
+
+  it("two classes: E[ln(e^a + e^b)] = E[softplus(a − b)] = 0.8060591833 at 2s² = 1 (SCIENCE.md §2.9, softplus E[φ] at q = 1)", () => {
+    // ln(e^a + e^b) = b + softplus(a − b) and E[b] = 0
+    expect(gaussianSoftmaxMoments(0.5, 2).logSumExp).toBeCloseTo(0.8060591833, 9);
+  });
+
+  it("the mean is 1/C to 1e-12, a check of the quadrature (exchangeable classes)", () => {
+    for (const [v, C] of [[0.01, 2], [1, 10], [4, 1000], [16, 30], [100, 7]] as const) {
+      expect(Math.abs(gaussianSoftmaxMoments(v, C).mean * C - 1)).toBeLessThan(1e-12);
+    }
+  });
+
+  it("small logit variance: E[p²] = (1 + s²(1 − 1/C))/C² and E[ln Σ e^z] = ln C + s²(1 − 1/C)/2, up to O(s⁴) (derived: p ≈ (1 + z − z̄)/C)", () => {
+    for (const C of [2, 10, 1000]) {
+      const v = 1e-3;
+      const m = gaussianSoftmaxMoments(v, C);
+      expect(rel(m.second, (1 + v * (1 - 1 / C)) / (C * C))).toBeLessThan(2 * v * v);
+      expect(Math.abs(m.logSumExp - (Math.log(C) + (v * (1 - 1 / C)) / 2))).toBeLessThan(v * v);
+    }
+    // below s² = 1e-4 the function returns the expansion itself; it must join the quadrature smoothly
+    expect(rel(gaussianSoftmaxMoments(0.99e-4, 10).second, gaussianSoftmaxMoments(1.01e-4, 10).second)).toBeLessThan(1e-5);
+    expect(gaussianSoftmaxMoments(1e-30, 10).second).toBeCloseTo(0.01, 15);
+    expect(gaussianSoftmaxMoments(0, 12)).toEqual({ mean: 1 / 12, second: 1 / 144, logSumExp: Math.log(12) });
+  });
+
+  it("many classes: the denominator concentrates at C·e^(s²/2) (law of large numbers), so E[p²] → e^(s²)/C²", () => {
+    for (const v of [0.25, 1, 2]) expect(rel(gaussianSoftmaxMoments(v, 1e6).second, Math.exp(v) / 1e12)).toBeLessThan(1e-3);
+  });
+
+  it("agrees with a seeded Monte Carlo within 4 standard errors (10 classes at s² = 1 and 2; 1000 classes at s² = 1; 10 classes at s² = 9)", () => {
+    for (const [v, C, samples] of [[1, 10, 40000], [2, 10, 40000], [1, 1000, 2000], [9, 10, 40000]] as const) {
+      const exact = gaussianSoftmaxMoments(v, C);
+      const mc = monteCarlo(v, C, samples, 20260 + C);
+      expect(Math.abs(exact.second - mc.second)).toBeLessThan(4 * mc.secondError);
+      expect(Math.abs(exact.logSumExp - mc.logSumExp)).toBeLessThan(0.02 * Math.sqrt(v) + 1e-3);
+    }
+  });
+
+  it("the log-normal approximation e^(s²)/C² overstates E[p²] with few classes: by 2.7× at s² = 2, C = 10", () => {
+    const exact = gaussianSoftmaxMoments(2, 10).second;
+    expect(exact).toBeCloseTo(0.02759, 4); // Monte Carlo above: 0.0277 ± 0.0001
+    expect(Math.exp(2) / 100 / exact).toBeGreaterThan(2.5);
+  });
+
+  it("one-hot limit above s² = 400: E[p²] → 1/C, continuous with the quadrature within 15%", () => {
+    expect(gaussianSoftmaxMoments(401, 50).second).toBe(1 / 50);
+    expect(rel(gaussianSoftmaxMoments(399, 50).second, 1 / 50)).toBeLessThan(0.15);
+    expect(rel(gaussianSoftmaxMoments(399, 50).logSumExp, gaussianSoftmaxMoments(401, 50).logSumExp)).toBeLessThan(0.01);
+  });
+
+  it("returns NaN for a negative variance or no classes", () => {
+    expect(gaussianSoftmaxMoments(-1, 10).second).toBeNaN();
+    expect(gaussianSoftmaxMoments(1, 0).second).toBeNaN();
+  });
+});
