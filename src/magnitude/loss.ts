@@ -1,30 +1,40 @@
 /**
  * The loss value and the gradient it seeds at the network's output, at the start and at the end of the horizon.
  *
+ * Every quantity here is predicted at the median draw (initialisation and data), then given the draw-to-draw
+ * spread it inherits from the network's output: the output's squared norm is log-normal over draws with
+ * ln-variance V (SCIENCE.md §2.6), so a seed f(output scale) has ln-variance (d ln f/d ln s²)²·V (the delta method,
+ * with the elasticity taken numerically). The propagated second moment is the mean over draws, median·e^(V/2).
+ *
  * Softmax cross-entropy (SCIENCE.md §2.1 output seed; DESIGN.md §3): ∂L/∂logit_j = (p_j − y_j)/N with N = batch ×
- * positions under mean reduction (1 under sum reduction). With logits of variance s², the wrong-class
- * probabilities are log-normal, p_j ≈ e^(z_j)/(C·e^(s²/2)) (a log-normal sum approximation), so their rms is
- * e^(s²/2)/C and log2 p_j spreads by s/ln 2: over many classes these elements span many binades. The right class
- * has (1 − p_y)/N with p_y ≈ 1/C at initialisation.
+ * positions under mean reduction (1 under sum reduction). At initialisation the labels are independent of the
+ * logits, which are N(0, s²) across classes, so every class has the same E[p²] and
+ * E[(1 − p_y)²] = 1 − 2/C + E[p²]; E[p²] and the loss E[ln Σ e^z] are the exact Gaussian expectations of
+ * src/numeric/softmax.ts (Laplace-transform quadrature, Cressie et al. 1981). Their log-normal-sum approximation
+ * e^(s²)/C² overstates E[p²] by 2.7× at s² = 2 with 10 classes.
  *
  * End of the horizon, derived here: a trained model's typical right-class probability is p_y ≈ e^(−finalLoss)
  * (the loss is the mean of −ln p_y), so the right-class gradient shrinks from (1 − 1/C) to (1 − e^(−finalLoss)),
- * and the wrong-class probabilities share the remaining mass 1 − p_y: their mean is (1 − p_y)/(C − 1), their rms
- * that times e^(s²/2) with the end-of-horizon logit variance s², capped by (1 − p_y)/√(C − 1) (all the mass on
- * one wrong class).
+ * and the wrong classes share the remaining mass 1 − p_y as a softmax over C − 1 classes of the end-of-horizon
+ * logit variance: E[p_j²] = (1 − p_y)²·E[q²] with q that softmax.
  *
  * Mean squared error (mean over every output element, as common implementations reduce it): ∂L/∂y = 2(y − t)/M
- * for M = batch × output elements per sample; E[(y − t)²] = E[y²] + targetScale² for targets independent of the
- * initial outputs. At the end the residual's rms is √finalLoss (the loss is its mean square), i.e. it shrinks by
- * √(loss ratio).
+ * for M = batch × output elements per sample. For targets independent of the initial outputs the loss of one draw
+ * is E[(y − t)²] = E[y²] + targetScale², increasing in the output's squared norm, so its median over draws is the
+ * output's median second moment + targetScale² (the mean over draws, E[y²] + targetScale², is larger by the
+ * log-normal factor e^(V/2) on the first term and is not what a typical run sees). At the end the residual's rms is
+ * √finalLoss (the loss is its mean square).
  */
 import type { LossSpec } from "../spec/types.js";
 import type { Gradient, Signal } from "../ops/types.js";
+import { gaussianSoftmaxMoments } from "../numeric/softmax.js";
 
 /** The loss value and the gradient tensors it seeds. */
 export interface LossSeed {
-  /** the loss value (one number per step on one worker) */
+  /** the loss value (one number per step on one worker) at the median draw */
   value: number;
+  /** variance over draws of ln(value) */
+  valueLogVar: number;
   /** what one element of the summed loss contributes, for the loss-value hazard */
   termValue: number;
   terms: number;
@@ -60,56 +70,98 @@ export function lossSeed(
     const C = loss.classes;
     const N = batch * positions;
     const divisor = loss.reduction === "mean" ? N : 1;
-    const s2 = Math.max(output.q - output.mean * output.mean, 0);
-    const pRight = phase === "end" && finalLoss !== undefined ? Math.exp(-finalLoss) : 1 / C;
+    const s2Mean = Math.max(output.q - output.mean * output.mean, 0);
+    const V = Math.max(output.logVar, 0);
+    const s2 = medianOf(s2Mean, V);
+    const endLoss = phase === "end" ? finalLoss : undefined;
+    const end = endLoss !== undefined;
+    const pRight = endLoss !== undefined ? Math.exp(-endLoss) : 1 / C;
     const rightMagnitude = 1 - pRight;
-    const wrongRms = C > 1 ? Math.min((rightMagnitude / (C - 1)) * Math.exp(s2 / 2), rightMagnitude / Math.sqrt(C - 1)) : 0;
+    // E[p_j²] for a wrong class and E[(1 − p_y)²], as functions of the logit variance
+    const wrongSecond = (v: number): number =>
+      C < 2 ? 0 : end ? rightMagnitude * rightMagnitude * gaussianSoftmaxMoments(v, C - 1).second : gaussianSoftmaxMoments(v, C).second;
+    const rightSecond = (v: number): number => (end ? rightMagnitude * rightMagnitude : 1 - 2 / C + gaussianSoftmaxMoments(v, C).second);
+    const totalSecond = (v: number): number => ((C - 1) * wrongSecond(v) + rightSecond(v)) / C;
     const k = scale / divisor;
-    const wrongQ = (wrongRms * k) ** 2;
-    const rightQ = (rightMagnitude * k) ** 2;
-    const totalQ = ((C - 1) * wrongQ + rightQ) / C;
-    const startLoss = Math.log(C) + s2 / 2;
-    const perTerm = phase === "end" && finalLoss !== undefined ? finalLoss : startLoss;
+    const wrong = seedMoment(wrongSecond, s2, V, k * k);
+    const right = seedMoment(rightSecond, s2, V, k * k);
+    const total = seedMoment(totalSecond, s2, V, k * k);
+    const perTerm = endLoss !== undefined ? endLoss : gaussianSoftmaxMoments(s2, C).logSumExp;
+    const valueLogVar = end ? 0 : logVarOf((v) => gaussianSoftmaxMoments(v, C).logSumExp, s2, V);
     // two samples' logits correlated by c share part of p; with labels independent across samples,
     // E[δ_n δ_m] per element = E[p_n p_m] − 2E[p]/C + 1/C² = (e^(c·s²) − 1)/C² (log-normal p; derived)
-    const c = s2 > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2, 0), 1) : 0;
-    const sharedQ = ((Math.exp(c * s2) - 1) / (C * C)) * k * k;
+    const c = s2Mean > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2Mean, 0), 1) : 0;
+    const sharedQ = ((Math.exp(c * s2Mean) - 1) / (C * C)) * k * k;
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
+      valueLogVar,
       termValue: perTerm,
       terms: N,
-      gradient: { q: totalQ, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: Math.min(sharedQ, totalQ) },
+      gradient: { q: total.q, zeroFraction: 0, shape: "gaussian", logVar: total.logVar, shared: Math.min(sharedQ, total.q) },
       bulk: {
         gradient: {
-          q: wrongQ,
+          q: wrong.q,
           zeroFraction: 0,
           shape: "log-normal",
           elementLog2Spread: Math.sqrt(s2) / Math.LN2,
           bound: Math.abs(k),
-          logVar: 0,
+          logVar: wrong.logVar,
         },
         elements: N * (C - 1),
       },
-      target: { gradient: { q: rightQ, zeroFraction: 0, shape: "bounded", bound: Math.abs(k), logVar: 0 }, elements: N },
-      rule: `softmax cross-entropy over ${C} classes, ${loss.reduction} over ${N}: right class (1 − p)/${divisor} = ${(rightMagnitude / divisor).toExponential(3)}, wrong classes ≈ ${(wrongRms / divisor).toExponential(3)}`,
-      source: "softmax cross-entropy gradient p − y (SCIENCE.md §2.1 output seed; DESIGN.md §3)",
+      target: { gradient: { q: right.q, zeroFraction: 0, shape: "bounded", bound: Math.abs(k), logVar: right.logVar }, elements: N },
+      rule: `softmax cross-entropy over ${C} classes, ${loss.reduction} over ${N}, logit variance ${s2.toPrecision(3)} at the median draw: right class rms(1 − p)/${divisor} = ${(Math.sqrt(rightSecond(s2)) / divisor).toExponential(3)}, wrong classes rms(p)/${divisor} = ${(Math.sqrt(wrongSecond(s2)) / divisor).toExponential(3)}`,
+      source: "softmax cross-entropy gradient p − y (SCIENCE.md §2.1 output seed); Gaussian softmax moments by Laplace-transform quadrature (Cressie et al. 1981)",
     };
   }
   const M = batch * positions * width;
   const divisor = loss.reduction === "mean" ? M : 1;
-  const startResidual = output.q + loss.targetScale * loss.targetScale;
-  const residual = phase === "end" && finalLoss !== undefined ? finalLoss : startResidual;
+  const V = Math.max(output.logVar, 0);
+  const endLoss = phase === "end" ? finalLoss : undefined;
+  const target2 = loss.targetScale * loss.targetScale;
+  // the residual's mean square as a function of the output's second moment, at the median draw
+  const residualOf = (x: number): number => (endLoss !== undefined ? endLoss : x + target2);
   const k = (2 * scale) / divisor;
-  const q = residual * k * k;
+  const seed = seedMoment(residualOf, medianOf(output.q, V), V, k * k);
+  const residual = residualOf(medianOf(output.q, V));
   // targets independent of the outputs: the samples share only the outputs' shared part
-  const gradient: Gradient = { q, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, q) };
+  const gradient: Gradient = { q: seed.q, zeroFraction: 0, shape: "gaussian", logVar: seed.logVar, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, seed.q) };
   return {
     value: loss.reduction === "mean" ? residual : residual * M,
+    valueLogVar: seed.logVar,
     termValue: residual,
     terms: M,
     gradient,
     bulk: { gradient, elements: M },
-    rule: `mean squared error, ${loss.reduction} over ${M}: 2·rms(y − t)/${divisor} = ${(2 * Math.sqrt(residual) / divisor).toExponential(3)}`,
-    source: "squared-error gradient 2(y − t) (common practice)",
+    rule: `mean squared error, ${loss.reduction} over ${M}, at the median draw: 2·rms(y − t)/${divisor} = ${(2 * Math.sqrt(residual) / divisor).toExponential(3)}`,
+    source: "squared-error gradient 2(y − t) (common practice); median over draws of a log-normal output scale (SCIENCE.md §2.6)",
   };
+}
+
+/** The median of a quantity whose ln is Gaussian with variance V and whose mean is `mean`: mean·e^(−V/2). */
+function medianOf(mean: number, V: number): number {
+  return mean * Math.exp(-V / 2);
+}
+
+/**
+ * Variance over draws of ln f(x) when ln x has variance V: (d ln f/d ln x)²·V (the delta method), the elasticity
+ * by a central difference of ±0.05 in ln x.
+ */
+function logVarOf(f: (x: number) => number, x: number, V: number): number {
+  if (!(V > 0) || !(x > 0)) return 0;
+  const h = 0.05;
+  const up = f(x * Math.exp(h));
+  const down = f(x * Math.exp(-h));
+  if (!(up > 0) || !(down > 0)) return 0;
+  const elasticity = (Math.log(up) - Math.log(down)) / (2 * h);
+  return elasticity * elasticity * V;
+}
+
+/**
+ * A seed second moment f(x)·factor at the median draw x, with the spread it inherits, as the engine carries it:
+ * the mean over draws median·e^(logVar/2) and logVar.
+ */
+function seedMoment(f: (x: number) => number, x: number, V: number, factor: number): { q: number; logVar: number } {
+  const logVar = logVarOf(f, x, V);
+  return { q: f(x) * factor * Math.exp(logVar / 2), logVar };
 }

@@ -270,10 +270,13 @@ class Phase {
       let branchResults = {};
       if (layer.branch !== undefined) {
         const seed = residualBranchSeed(layer, gradient);
+        delete seed.gradient.windowMaximum;
         const branchGradient = this.backward(layer.branch, seed.gradient, chain(current, layer.name, [seed.factor], this.build), false);
         branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
       }
       const result = rule.backward(this.ctx, layer, this.stash.get(layer.index), gradient, branchResults);
+      // only the rectifier right before a max-pool may use the arg-max position
+      if (result.input !== undefined && layer.family !== "max-pool") delete result.input.windowMaximum;
       // rules that do not say otherwise keep the gradient's cross-sample correlation
       if (result.input !== undefined && result.input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) {
         result.input.shared = gradient.shared * (result.input.q / gradient.q);
@@ -353,6 +356,14 @@ class Phase {
   }
 }
 
+/**
+ * The moments of a loss value given at the median draw with ln-variance W over draws: the profile's rms is the
+ * median, and its scale spread comes from ln(value²), of variance 4W (mean value² = median²·e^(2W)).
+ */
+function lossValueMoments(value: number, W: number): { q: number; zeroFraction: number; shape: "constant"; logVar: number } {
+  return { q: value * value * Math.exp(2 * W), zeroFraction: 0, shape: "constant", logVar: 4 * W };
+}
+
 /** Run one phase: forward, loss, backward. */
 function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build: boolean, lossScale: number): PhaseResult {
   const p = new Phase(graph, spec, phase, build, lossScale);
@@ -402,18 +413,18 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     role: "loss",
     slot: "activations",
     shape: [1],
-    profile: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
-    ledger: build ? chain(null, "loss", [{ ratio: seed.value * seed.value, rule: `loss value ${seed.value.toPrecision(4)}`, source: seed.source }], true) : null,
+    profile: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
+    ledger: build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${seed.value.toPrecision(4)} at the median draw`, source: seed.source }], true) : null,
   });
   if (training.loss.reduction === "sum") {
     p.hazards.push({
       kind: "loss-value",
       layer: "loss",
-      input: profileOf({ q: seed.termValue * seed.termValue, zeroFraction: 0, shape: "constant", logVar: 0 }, seed.terms),
+      input: profileOf(lossValueMoments(seed.termValue, seed.valueLogVar), seed.terms),
       terms: seed.terms,
       guarded: false,
       detail: `the loss sums ${seed.terms} terms (sum reduction)`,
-      output: profileOf({ q: seed.value * seed.value, zeroFraction: 0, shape: "constant", logVar: 0 }, 1),
+      output: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
     });
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);

@@ -2,6 +2,7 @@
 import { readFileSync, readdirSync } from "node:fs";
 import { describe, expect, test } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
+import { createRandom, gaussianSoftmaxMoments } from "../../src/numeric/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import type { Prediction, TensorPrediction } from "../../src/magnitude/index.js";
 import { parseSpec } from "../../src/spec/index.js";
@@ -89,22 +90,28 @@ describe("the prediction lists every tensor once", () => {
 });
 
 describe("loss seeds (SCIENCE.md §2.1 output seed; DESIGN.md §3)", () => {
-  test("softmax cross-entropy with mean reduction: right class (1 − 1/C)/N, wrong classes e^(s²/2)/(C·N), log-normal", () => {
+  test("softmax cross-entropy with mean reduction: right class √E[(1 − p)²]/N, wrong classes √E[p²]/N at the median draw's logit variance, log-normal elements", () => {
     const C = 1000;
     const spec = makeSpec([dense("head", C, normalInit(0.5 / Math.sqrt(64)))], { input: features(64, 8), loss: crossEntropy(C), ...training({ batch: 16 }) });
     const p = run(spec);
     const N = 16 * 8;
-    const s2 = ms(tensor(p, "head/pre-activation"));
-    expect(s2).toBeCloseTo(0.25, 12);
+    expect(ms(tensor(p, "head/pre-activation"))).toBeCloseTo(0.25, 12);
+    const s2 = tensor(p, "head/pre-activation").start.rms ** 2; // the median draw's logit variance (no bias: mean 0)
+    const m = gaussianSoftmaxMoments(s2, C);
     const right = tensor(p, "head/activation-gradient:target-class");
-    expect(right.start.rms).toBeCloseTo((1 - 1 / C) / N, 15);
+    // E[(1 − p_y)²] = 1 − 2E[p] + E[p²] with E[p] = 1/C (labels independent of the logits)
+    expect(right.start.rms).toBeCloseTo(Math.sqrt(1 - 2 / C + m.second) / N, 15);
     expect(right.start.elements).toBe(N);
     const wrong = tensor(p, "head/activation-gradient");
     expect(wrong.start.shape).toBe("log-normal");
-    expect(wrong.start.rms).toBeCloseTo(Math.exp(s2 / 2) / C / N, 15);
+    expect(wrong.start.rms).toBeCloseTo(Math.sqrt(m.second) / N, 15);
+    // with 1000 classes the denominator concentrates, so the log-normal form e^(s²/2)/C is within 1%
+    expect(Math.abs((wrong.start.rms * N * C) / Math.exp(s2 / 2) - 1)).toBeLessThan(0.01);
     expect(wrong.start.elementLog2Spread).toBeCloseTo(Math.sqrt(s2) / Math.LN2, 12);
     expect(wrong.start.elements).toBe(N * (C - 1));
-    expect(tensor(p, "loss/loss").start.rms).toBeCloseTo(Math.log(C) + s2 / 2, 12);
+    const loss = tensor(p, "loss/loss").start;
+    expect(loss.rms).toBeCloseTo(m.logSumExp, 12);
+    expect(Math.abs(loss.rms - (Math.log(C) + s2 / 2))).toBeLessThan(1e-3);
   });
 
   test("sum reduction drops the 1/N and reports the loss-value hazard", () => {
@@ -121,15 +128,34 @@ describe("loss seeds (SCIENCE.md §2.1 output seed; DESIGN.md §3)", () => {
     const spec = makeSpec([dense("head", 100, lecun)], { input: features(32), loss: crossEntropy(100), ...training({ batch: 10, horizon: { steps: 10, weightGrowth: 1, finalLoss: 0.1 } }) });
     const right = tensor(run(spec), "head/activation-gradient:target-class");
     expect(right.end.rms).toBeCloseTo((1 - Math.exp(-0.1)) / 10, 14);
-    expect(right.start.rms).toBeCloseTo((1 - 1 / 100) / 10, 14);
+    const s2 = tensor(run(spec), "head/pre-activation").start.rms ** 2;
+    expect(right.start.rms).toBeCloseTo(Math.sqrt(1 - 2 / 100 + gaussianSoftmaxMoments(s2, 100).second) / 10, 14);
   });
 
-  test("mean squared error: 2·√(E[y²] + target²)/M; the end shrinks by √(final loss / initial loss)", () => {
+  test("mean squared error: 2·√(median E[y²] + target²)/M, the loss at the median draw with the output's spread; the end shrinks to √(final loss)", () => {
     const spec = makeSpec([dense("out", 4, lecun)], { input: features(16), loss: mse(3), ...training({ batch: 8, horizon: { steps: 10, weightGrowth: 1, finalLoss: 0.25 } }) });
-    const g = tensor(run(spec), "out/activation-gradient");
+    const p = run(spec);
+    const g = tensor(p, "out/activation-gradient");
     const M = 8 * 4;
-    expect(g.start.rms).toBeCloseTo((2 * Math.sqrt(1 + 9)) / M, 14);
-    expect(g.end.rms / g.start.rms).toBeCloseTo(Math.sqrt(0.25 / 10), 12);
+    const out = tensor(p, "out/pre-activation").start;
+    const median = out.rms ** 2; // the output's second moment at the median draw
+    expect(median).toBeLessThan(ms(tensor(p, "out/pre-activation"))); // below the mean over draws, q = 1
+    expect(g.start.rms).toBeCloseTo((2 * Math.sqrt(median + 9)) / M, 14);
+    expect(g.end.rms).toBeCloseTo((2 * Math.sqrt(0.25)) / M, 14);
+    // ln(loss) = ln(X + t²) moves with ln X by the elasticity X/(X + t²) (delta method)
+    const loss = tensor(p, "loss/loss").start;
+    expect(loss.rms).toBeCloseTo(median + 9, 12);
+    expect(loss.log2Spread).toBeCloseTo((out.log2Spread * 2 * median) / (median + 9), 4);
+    expect(g.start.log2Spread).toBeCloseTo(loss.log2Spread / 2, 12);
+    // seeded Monte Carlo of the statistic: draws of the output's second moment from the log-normal of SCIENCE.md §2.6
+    // (ln X ~ N(ln q − V/2, V), q the mean over draws) give a median loss X + t² equal to the prediction
+    const random = createRandom(11);
+    const V = (out.log2Spread * 2 * Math.LN2) ** 2;
+    const q = ms(tensor(p, "out/pre-activation"));
+    const draws = Array.from({ length: 20001 }, () => q * Math.exp(-V / 2 + Math.sqrt(V) * random.normal()) + 9).sort((a, b) => a - b);
+    expect(Math.abs((draws[10000] as number) / loss.rms - 1)).toBeLessThan(0.01);
+    const meanLoss = draws.reduce((a, b) => a + b, 0) / draws.length;
+    expect(meanLoss).toBeGreaterThan(loss.rms); // the mean over draws is not what is predicted
   });
 
   test("a loss scale S multiplies every gradient by S and leaves the forward pass alone (Micikevicius et al. 2018 §3.2)", () => {
