@@ -77,6 +77,11 @@ export interface Gradient {
   positionCorrelation?: number;
   /** as Signal.allZero: share of features whose gradient is exactly zero at every term (a ReLU off for the whole batch) */
   allZero?: number;
+  /**
+   * set by max-pool's backward: every nonzero element sits at the arg-max of a window of this many inputs, so a
+   * rectifier just before the pool sees the derivative at the window's maximum, not at a random element
+   */
+  windowMaximum?: number;
 }
 
 /** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */

@@ -7,7 +7,8 @@ import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import type { Prediction, TensorPrediction } from "../../src/magnitude/index.js";
 import type { LayerSpec, NetworkSpec } from "../../src/spec/types.js";
-import { act, attention, dense, features, glorot, he, lecun, makeSpec, normalInit, residual } from "./build-spec.js";
+import { simulate } from "../../src/simulate/index.js";
+import { act, attention, conv, crossEntropy, dense, features, flatten, glorot, he, image, lecun, makeSpec, normalInit, pool, residual } from "./build-spec.js";
 
 function run(spec: NetworkSpec): Prediction {
   const result = buildGraph(spec);
@@ -139,12 +140,58 @@ describe("batch norm in a plain ReLU network", () => {
     expect(meanSquare(tensor(p, "d10/pre-activation"))).toBeCloseTo(1, 12);
   });
 
+  test("the same growth through conv → batch-norm (training mode, statistics over batch × pixels) → ReLU stages (Yang et al. 2019; check 29)", () => {
+    const layers: LayerSpec[] = [];
+    for (let i = 0; i < 8; i++) layers.push(conv(`c${i}`, 16), { family: "batch-norm", name: `bn${i}`, path: ["bn", i], gain: 1, epsilon: 0 }, act(`a${i}`));
+    const p = run(makeSpec([...layers, flatten("f"), dense("out", 10, lecun)], { input: image(16, 8, 8), loss: crossEntropy(10) }));
+    for (let i = 1; i < 7; i++) {
+      const ratio = meanSquare(tensor(p, `a${i}/activation-gradient`)) / meanSquare(tensor(p, `a${i + 1}/activation-gradient`));
+      expect(ratio).toBeCloseTo(Math.PI / (Math.PI - 1), 9);
+    }
+  });
+
   test("layer norm does not remove the per-feature batch mean, so the same network keeps its gradient (contrast)", () => {
     const layers: LayerSpec[] = [];
     for (let i = 0; i < 10; i++) layers.push(dense(`d${i}`, 256, he), { family: "layer-norm", name: `ln${i}`, path: ["ln", i], gain: 1, epsilon: 0 }, act(`a${i}`));
     const p = run(makeSpec([...layers, dense("out", 1, lecun)], { input: features(256) }));
     const ratio = meanSquare(tensor(p, "a3/activation-gradient")) / meanSquare(tensor(p, "a4/activation-gradient"));
     expect(ratio).toBeCloseTo(1, 12);
+  });
+});
+
+describe("a rectifier before a max-pool", () => {
+  // max(φ(x)) = φ(max x) for a nondecreasing φ, so the pool's gradient reaches the window's maximum, which is off only
+  // when all k independent symmetric inputs are ≤ 0: probability 2^−k (derived), not 1/2 as for a random element
+  const chain = (k: number, activation: "relu" | "leaky-relu"): NetworkSpec =>
+    makeSpec([conv("c", 16), act("r", activation, 0.2), pool("p", "max-pool", k), flatten("f"), dense("out", 10, lecun)], {
+      input: image(4, 12, 12),
+      loss: crossEntropy(10),
+      training: { batch: 32 },
+    });
+
+  test("ReLU keeps 1 − 2^−k of the gradient's second moment and zeroes 2^−k of the windows' maxima (k = 4 for 2×2, 9 for 3×3)", () => {
+    for (const [size, k] of [[2, 4], [3, 9]] as const) {
+      const p = run(chain(size, "relu"));
+      const before = tensor(p, "r/activation-gradient");
+      const after = tensor(p, "c/activation-gradient");
+      expect(meanSquare(after) / meanSquare(before)).toBeCloseTo(1 - 2 ** -k, 12);
+      expect(after.start.zeroFraction).toBeCloseTo(1 - (1 - before.start.zeroFraction) * (1 - 2 ** -k), 12);
+    }
+    // leaky ReLU (slope a): 1 − 2^−k + a²·2^−k
+    const leaky = run(chain(2, "leaky-relu"));
+    expect(meanSquare(tensor(leaky, "c/activation-gradient")) / meanSquare(tensor(leaky, "r/activation-gradient"))).toBeCloseTo(1 - 1 / 16 + 0.04 / 16, 12);
+  });
+
+  test("the float64 simulation (seeded Monte Carlo) measures the same share: within 0.02 of 15/16 and 511/512", () => {
+    for (const [size, k] of [[2, 4], [3, 9]] as const) {
+      const { comparison } = simulate(chain(size, "relu"), { draws: 2, seed: 7, round: false, predict });
+      const row = (id: string) => comparison?.rows.find((r) => r.id === id);
+      const second = (id: string): number => {
+        const stats = row(id)?.measured.median;
+        return stats === undefined ? NaN : stats.rms ** 2 * (1 - stats.zeroFraction);
+      };
+      expect(Math.abs(second("c/activation-gradient") / second("r/activation-gradient") - (1 - 2 ** -k))).toBeLessThan(0.02);
+    }
   });
 });
 

@@ -29,6 +29,8 @@ export interface ActivationStash {
   allOff: number;
   /** softmax: E[p²] */
   probabilitySecond?: number;
+  /** leaky-relu: the negative slope */
+  slope?: number;
 }
 
 const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017; SCIENCE.md §2.9)";
@@ -168,6 +170,7 @@ export function pointwiseForward(
       derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0,
       derivativeCrossPosition: keep * keep * crossPosition.derivative + (1 - keep * keep) * d0 * d0,
       allOff,
+      slope,
     },
     ratio: input.q > 0 ? q / input.q : 0,
     rule: () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
@@ -178,17 +181,27 @@ export function pointwiseForward(
 export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient): { gradient: Gradient; ratio: number; rule: Text } {
   let logVar = output.logVar;
   if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
-  const zeroFraction = 1 - (1 - stash.derivativeZeroFraction) * (1 - output.zeroFraction);
-  const gradient: Gradient = { q: stash.derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
+  let derivativeSecond = stash.derivativeSecond;
+  let derivativeZeroFraction = stash.derivativeZeroFraction;
+  let rule: Text = () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`;
+  const k = output.windowMaximum;
+  if (k !== undefined && (name === "relu" || name === "leaky-relu")) {
+    // a max-pool after a rectifier passes its gradient to the window's maximum, which is on the positive side
+    // unless all k inputs are off: P = off^k for independent inputs (max(φ(x)) = φ(max x) for increasing φ)
+    const z = stash.input.zeroFraction;
+    const allOff = Math.pow(z + (1 - z) / 2, k);
+    const a = name === "relu" ? 0 : (stash.slope ?? 0);
+    derivativeSecond = 1 - allOff + a * a * allOff;
+    derivativeZeroFraction = name === "relu" ? allOff : 0;
+    rule = () => `${name} before a max-pool of ${k}: the arg-max is off with probability ${fmt(allOff)}, E[φ'²] = ${fmt(derivativeSecond)}`;
+  }
+  const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
+  const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
   if (output.shared !== undefined) gradient.shared = stash.derivativeCross * output.shared;
   if (stash.derivativeSecond > 0) gradient.positionCorrelation = Math.min((stash.derivativeCrossPosition * positionCorrelationOf(output)) / stash.derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
-  return {
-    gradient,
-    ratio: stash.derivativeSecond,
-    rule: () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`,
-  };
+  return { gradient, ratio: derivativeSecond, rule };
 }
 
 export const activationRule: AnalyticRule<ActivationStash> = {

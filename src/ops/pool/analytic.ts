@@ -118,7 +118,7 @@ export const poolRule: AnalyticRule<null> = {
     }
     const reached = Math.min(share, 1);
     return {
-      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share, zeroFraction: 1 - reached * (1 - output.zeroFraction) },
+      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share, zeroFraction: 1 - reached * (1 - output.zeroFraction), windowMaximum: k },
       factors: [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
       inner: [],
       weightGradients: [],
