@@ -57,13 +57,10 @@ export function gemm(
   accumulate?: RoundFunction,
 ): void {
   if (m <= 0 || n <= 0) return;
-  if (beta === 0) {
-    for (let i = 0; i < m; i++) c.fill(0, cOffset + i * cRowStride, cOffset + i * cRowStride + n);
-  }
-  if (k <= 0) return;
   const binary32 = accumulate === Math.fround;
-  if (accumulate !== undefined && !binary32) {
-    gemmRounded(m, n, k, a, aOffset, aRowStride, aColStride, b, bOffset, bRowStride, bColStride, c, cOffset, cRowStride, accumulate);
+  if (k <= 0 || (accumulate !== undefined && !binary32)) {
+    if (beta === 0) for (let i = 0; i < m; i++) c.fill(0, cOffset + i * cRowStride, cOffset + i * cRowStride + n);
+    if (k > 0) gemmRounded(m, n, k, a, aOffset, aRowStride, aColStride, b, bOffset, bRowStride, bColStride, c, cOffset, cRowStride, accumulate!);
     return;
   }
   // workspace: packed B block, packed A block, then the block's output tiles
@@ -84,7 +81,7 @@ export function gemm(
         const mPanels = Math.ceil(mc / TILE);
         packPanels(w, aAt, mc, kc, a, aOffset + ic * aRowStride + pc * aColStride, aRowStride, aColStride);
         computeTiles(binary32, mPanels, nPanels, kc, aAt, 0, tilesAt, nPanels * TILE);
-        addTiles(w, tilesAt, nPanels * TILE, mc, nc, c, cOffset + ic * cRowStride + jc, cRowStride, binary32);
+        addTiles(w, tilesAt, nPanels * TILE, mc, nc, c, cOffset + ic * cRowStride + jc, cRowStride, beta === 0 && pc === 0, binary32);
       }
     }
   }
@@ -97,29 +94,50 @@ export function gemm(
  */
 function packPanels(w: Float64Array, at: number, lines: number, kc: number, src: Float64Array, from: number, lineStride: number, stepStride: number): void {
   const full = Math.floor(lines / TILE);
-  let d = at;
-  // the loop body copies one step of a panel: TILE (= 4) lines
-  for (let q = 0; q < full; q++) {
-    let s = from + q * TILE * lineStride;
-    for (let p = 0; p < kc; p++, s += stepStride, d += TILE) {
-      w[d] = src[s]!;
-      w[d + 1] = src[s + lineStride]!;
-      w[d + 2] = src[s + 2 * lineStride]!;
-      w[d + 3] = src[s + 3 * lineStride]!;
+  const panel = TILE * kc;
+  // each loop body copies one step of a panel, TILE (= 4) lines; the outer loop runs along the longer stride,
+  // so that the source is read in storage order
+  if (lineStride >= stepStride) {
+    for (let q = 0; q < full; q++) {
+      let s = from + q * TILE * lineStride;
+      let d = at + q * panel;
+      for (let p = 0; p < kc; p++, s += stepStride, d += TILE) {
+        w[d] = src[s]!;
+        w[d + 1] = src[s + lineStride]!;
+        w[d + 2] = src[s + 2 * lineStride]!;
+        w[d + 3] = src[s + 3 * lineStride]!;
+      }
+    }
+  } else {
+    for (let p = 0; p < kc; p++) {
+      let s = from + p * stepStride;
+      let d = at + p * TILE;
+      for (let q = 0; q < full; q++, s += TILE * lineStride, d += panel) {
+        w[d] = src[s]!;
+        w[d + 1] = src[s + lineStride]!;
+        w[d + 2] = src[s + 2 * lineStride]!;
+        w[d + 3] = src[s + 3 * lineStride]!;
+      }
     }
   }
   const rest = lines - full * TILE;
   if (rest === 0) return;
   const s = from + full * TILE * lineStride;
+  let d = at + full * panel;
   for (let p = 0; p < kc; p++) for (let r = 0; r < TILE; r++) w[d++] = r < rest ? src[s + r * lineStride + p * stepStride]! : 0;
 }
 
-/** C[0:rows, 0:cols] += the tiles (row pitch `ldt`), each sum rounded to binary32 when asked. */
-function addTiles(w: Float64Array, at: number, ldt: number, rows: number, cols: number, c: Float64Array, cAt: number, ldc: number, binary32: boolean): void {
+/**
+ * C[0:rows, 0:cols] += the tiles (row pitch `ldt`), each sum rounded to binary32 when asked; with `overwrite`
+ * (the first inner block of C = A·B) C = the tiles, which is the same as 0 + tile since a sum started at +0 is
+ * never −0 (IEEE 754-2019 §6.3).
+ */
+function addTiles(w: Float64Array, at: number, ldt: number, rows: number, cols: number, c: Float64Array, cAt: number, ldc: number, overwrite: boolean, binary32: boolean): void {
   for (let i = 0; i < rows; i++) {
     const t = at + i * ldt;
     const o = cAt + i * ldc;
-    if (binary32) for (let j = 0; j < cols; j++) c[o + j] = Math.fround(c[o + j]! + w[t + j]!);
+    if (overwrite) for (let j = 0; j < cols; j++) c[o + j] = w[t + j]!;
+    else if (binary32) for (let j = 0; j < cols; j++) c[o + j] = Math.fround(c[o + j]! + w[t + j]!);
     else for (let j = 0; j < cols; j++) c[o + j] = c[o + j]! + w[t + j]!;
   }
 }
