@@ -336,7 +336,8 @@ function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; 
     if (m === 0) loss = r.loss;
     for (const [key, g] of r.gradients) {
       const sum = sums.get(key);
-      if (sum === undefined) sums.set(key, Float64Array.from(g));
+      // the first micro-batch's gradient is a fresh array from its kernel, used nowhere else: it becomes the sum
+      if (sum === undefined) sums.set(key, g);
       else for (let i = 0; i < g.length; i++) sum[i] = sum[i]! + g[i]!;
     }
   }
