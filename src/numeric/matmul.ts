@@ -164,20 +164,13 @@ function gemmRounded(
   cRowStride: number,
   round: RoundFunction,
 ): void {
-  // pack B transposed so that each column is contiguous
-  const bt = new Float64Array(n * k);
-  for (let p = 0; p < k; p++) {
-    for (let j = 0; j < n; j++) bt[j * k + p] = b[bOffset + p * bRowStride + j * bColStride]!;
-  }
-  const row = new Float64Array(k);
+  // C itself holds the running sums: each output still adds its terms in order of p, and nothing is allocated
   for (let i = 0; i < m; i++) {
-    for (let p = 0; p < k; p++) row[p] = a[aOffset + i * aRowStride + p * aColStride]!;
     const ci = cOffset + i * cRowStride;
-    for (let j = 0; j < n; j++) {
-      let s = c[ci + j]!;
-      const bj = j * k;
-      for (let p = 0; p < k; p++) s = round(s + round(row[p]! * bt[bj + p]!));
-      c[ci + j] = s;
+    for (let p = 0; p < k; p++) {
+      const aip = a[aOffset + i * aRowStride + p * aColStride]!;
+      const bp = bOffset + p * bRowStride;
+      for (let j = 0; j < n; j++) c[ci + j] = round(c[ci + j]! + round(aip * b[bp + j * bColStride]!));
     }
   }
 }

@@ -14,7 +14,7 @@
  *
  * All randomness comes from one seeded source per draw (createRandom of src/numeric), never from a global one.
  */
-import { getFormat, roundArrayInPlace, type Format, type RoundOptions } from "../formats/index.js";
+import { getFormat, roundArrayInPlace, roundTo, type Format, type RoundOptions } from "../formats/index.js";
 import { buildGraph, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
@@ -86,7 +86,7 @@ class Recorder {
     const format = this.setup.formats[meta.slot];
     const values = selectElements(data, excluded);
     const scales = storageScales(values, format, this.setup.plan.scaling);
-    this.stats.set(meta.id, { meta, stats: measureTensor(values, format, roundOptionsFor(this.setup, format), scales) });
+    this.stats.set(meta.id, { meta, stats: measureTensor(values, format, roundOptionsFor(this.setup.roundOptions, format), scales) });
   }
 
   round(slot: PlanSlot, data: Float64Array): void {
@@ -95,15 +95,15 @@ class Recorder {
 }
 
 /** The plan's overflow mode governs 8-bit conversions; IEEE 16- and 32-bit conversions overflow to infinity (IEEE 754-2019 §7.4). */
-function roundOptionsFor(setup: Setup, format: Format): RoundOptions {
-  return format.bits === 8 ? setup.roundOptions : { ...setup.roundOptions, overflow: "infinity-or-nan" };
+function roundOptionsFor(options: RoundOptions, format: Format): RoundOptions {
+  return format.bits === 8 ? options : { ...options, overflow: "infinity-or-nan" };
 }
 
 /** Round in place to a format, through the plan's 8-bit scale factors when it has them. */
 function storeIn(setup: Setup, format: Format, data: Float64Array): void {
   const scales = storageScales(data, format, setup.plan.scaling);
   applyScales(data, scales);
-  roundArrayInPlace(format, data, roundOptionsFor(setup, format));
+  roundArrayInPlace(format, data, roundOptionsFor(setup.roundOptions, format));
   applyScales(data, scales, true);
 }
 
@@ -481,14 +481,9 @@ function accumulator(format: Format, options: RoundOptions): RoundFunction | und
   if (format.name === "binary64") return undefined;
   // Math.fround is round-to-nearest-even into binary32 (ECMAScript §21.3.2.17), the same as the format model's rounding
   if (format.name === "binary32" || format.name === "tf32") return Math.fround;
-  const f = format;
-  return (x: number) => roundWith(f, x, options);
-}
-
-function roundWith(format: Format, x: number, options: RoundOptions): number {
-  const one = Float64Array.of(x);
-  roundArrayInPlace(format, one, format.bits === 8 ? options : { ...options, overflow: "infinity-or-nan" });
-  return one[0]!;
+  // one scalar call per rounding, with the options fixed once: the products call this twice per multiply-add
+  const scalarOptions = roundOptionsFor(options, format);
+  return (x: number) => roundTo(format, x, scalarOptions);
 }
 
 /**

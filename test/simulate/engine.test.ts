@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
 import fc from "fast-check";
+import { f16round } from "@petamoriken/float16";
 import { FORMATS, roundTo, type FormatName } from "../../src/formats/index.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
@@ -64,6 +65,17 @@ describe("simulation engine", () => {
     const pre = result.tensors.find((t) => t.id === "dense-0/pre-activation")!;
     // He: q_out = 2/fan_in · fan_in · q_in / 2 ... for the first layer, q = fan_in·(2/fan_in)·1 = 2, rms √2
     expect(Math.abs(Math.log2(pre.median.rms / Math.SQRT2))).toBeLessThan(0.25);
+  });
+
+  it("with a binary16 accumulate format, every product and partial sum is rounded: a dense layer's raw outputs lie on the binary16 grid", () => {
+    // the measured values are taken before storage rounding, so only the accumulation can put them on the grid;
+    // the grid is checked with f16round of @petamoriken/float16 (IEEE 754-2019 binary16)
+    const onGrid = (accumulate: string): boolean => {
+      const pre = runSimulation(spec(MLP.replace("accumulate: binary32", `accumulate: ${accumulate}`))).tensors.find((t) => t.id === "dense-0/pre-activation")!;
+      return [pre.median.max, ...pre.median.quantiles].every((v) => f16round(v) === v);
+    };
+    expect(onGrid("binary16")).toBe(true);
+    expect(onGrid("binary32")).toBe(false);
   });
 
   it("rounds what it stores: an input below binary16's flush bound becomes zero, and so does everything after it", () => {
