@@ -13,7 +13,6 @@
  */
 import { TILE, computeTiles, tileWorkspace } from "./simd.js";
 
-
 /** Rounds one binary64 value to a narrower format (the accumulate format of a precision plan). */
 export type RoundFunction = (x: number) => number;
 
