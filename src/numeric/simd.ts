@@ -1,13 +1,14 @@
 /**
- * The inner kernel of the blocked matrix products (matmul.ts), as a small WebAssembly module using 128-bit SIMD:
- * each f64x2 lane is an ordinary IEEE binary64 multiply and add (WebAssembly Core Specification 2.0, §4.3.2 and
- * §4.4.3.1: lane-wise, round to nearest, no fused multiply-add), so a lane accumulates exactly the sequence of
- * roundings a scalar loop would, and the results are bit-for-bit those of the plain loop summed in the same order.
- * Two lanes per instruction, sixteen sums held in eight vector registers and no bounds check per element make it
- * several times faster than the same tile written in JavaScript.
+ * The inner kernel of the blocked matrix products (matmul.ts), as a small WebAssembly module using 128-bit SIMD.
+ * Each f64x2 lane is an ordinary IEEE 754 binary64 multiply or add, rounded to nearest with ties to even, and a
+ * vector instruction applies it lane by lane with no fused multiply-add (WebAssembly Core Specification 2.0,
+ * §4.3 Numerics; section number from memory). So a lane accumulates exactly the roundings a scalar loop would,
+ * and the sums are bit-for-bit those of a plain loop adding the same terms in the same order. Two lanes per
+ * instruction, sixteen sums held in eight vector registers and no bounds check per element make it several
+ * times faster than the same tile written in JavaScript.
  *
- * The module is assembled below from named instructions (about 80 lines of bytecode), so there is no binary
- * blob and no build step; it imports one memory, which holds the packed panels and the output tiles.
+ * The module is assembled below from named instructions, so there is no binary blob and no build step; it
+ * imports one memory, which holds the packed panels and the output tiles.
  */
 
 // lib ES2022 and @types/node 20 do not declare the WebAssembly global; this is the part used here.
