@@ -91,6 +91,26 @@ describe("blocked matrix products", () => {
     );
   });
 
+  it("in binary64 equals the plain sequential sum bit for bit, for inner lengths within one block (lane-wise IEEE 754-2019 arithmetic)", () => {
+    fc.assert(
+      fc.property(fc.integer({ min: 1, max: 9 }), fc.integer({ min: 1, max: 256 }), fc.integer({ min: 1, max: 9 }), fc.integer(), (m, k, n, seed) => {
+        const rnd = testRandom(seed);
+        const a = randomArray(rnd, m * k);
+        const b = randomArray(rnd, k * n);
+        const c = new Float64Array(m * n);
+        matmul(a, b, c, m, k, n);
+        for (let i = 0; i < m; i++)
+          for (let j = 0; j < n; j++) {
+            let s = 0;
+            for (let p = 0; p < k; p++) s += a[i * k + p]! * b[p * n + j]!;
+            if (!Object.is(c[i * n + j], s)) return false;
+          }
+        return true;
+      }),
+      { numRuns: 50 },
+    );
+  });
+
   it("gives the same bits on every run, whatever was computed before (deterministic)", () => {
     const rnd = testRandom(77);
     const [m, k, n] = [37, 700, 530];
