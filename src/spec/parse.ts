@@ -6,6 +6,7 @@ import { formatSpecPath, type SpecIssue, type SpecPosition } from "./issues.js";
 import { locateIn } from "./locate.js";
 import { errorMap, flattenIssues, type RawIssue } from "./messages.js";
 import { normalizeSpec } from "./normalize.js";
+import { readPlainYaml } from "./plain-yaml.js";
 import { specSchema } from "./schema.js";
 import type { NetworkSpec, SpecPath } from "./types.js";
 
@@ -44,8 +45,31 @@ function byPosition(a: SpecIssue, b: SpecIssue): number {
  */
 export function parseSpec(text: string, source: string): SpecResult {
   if (typeof text !== "string") throw new TypeError(`parseSpec needs the text of a spec, got ${typeof text}`);
+  // most specs are plain YAML: read them fast and build the positioned document only when a position is asked
+  // for; a spec with any problem goes the full way, so its issues are exactly those of the yaml library's path
+  const plain = readPlainYaml(text);
+  let parsed: Parsed | undefined;
+  if (plain !== null && typeof plain === "object" && !Array.isArray(plain)) {
+    const fast = validateSpec(plain as Record<string, unknown>, source, () => (parsed ??= parseWithPositions(text)));
+    if (fast.ok) return fast;
+  }
+  return parseYaml(text, source, parsed);
+}
+
+interface Parsed {
+  doc: Document;
+  counter: LineCounter;
+}
+
+function parseWithPositions(text: string): Parsed {
   const counter = new LineCounter();
   const doc = parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys: true, prettyErrors: true });
+  return { doc: doc as Document, counter };
+}
+
+/** The yaml library's way: every YAML problem with its position, then the spec's. */
+function parseYaml(text: string, source: string, parsed = parseWithPositions(text)): SpecResult {
+  const { doc, counter } = parsed;
   if (doc.errors.length > 0) {
     const issues = doc.errors.map((error) => ({
       file: source,
@@ -74,17 +98,23 @@ export function parseSpec(text: string, source: string): SpecResult {
     return { ok: false, issues: [{ file: source, line: 1, column: 1, path: "", message: "the spec is empty: it needs at least input, training and layers" }] };
   }
   if (typeof data !== "object" || Array.isArray(data)) {
-    const at = locateIn(doc as Document, counter, []);
+    const at = locateIn(doc, counter, []);
     const got = Array.isArray(data) ? "a list" : `${JSON.stringify(data)}`;
     return {
       ok: false,
       issues: [{ file: source, line: at.line, column: at.column, path: "", message: `a spec is a mapping of keys (input, training, layers, …), got ${got}` }],
     };
   }
+  return validateSpec(data as Record<string, unknown>, source, () => parsed);
+}
+
+/** Validate and normalize the plain data of a spec; `parsed` gives the positioned document when an issue needs it. */
+function validateSpec(document: Record<string, unknown>, source: string, parsed: () => Parsed): SpecResult {
   // top-level keys starting with "x-" are the user's own (a place to keep YAML anchors); they are ignored
-  data = Object.fromEntries(Object.entries(data as Record<string, unknown>).filter(([key]) => !key.startsWith("x-")));
+  const data = Object.fromEntries(Object.entries(document).filter(([key]) => !key.startsWith("x-")));
   const toIssue = (raw: RawIssue): SpecIssue => {
-    const at = locateIn(doc as Document, counter, raw.path, raw.atKey);
+    const { doc, counter } = parsed();
+    const at = locateIn(doc, counter, raw.path, raw.atKey);
     return { file: source, line: at.line, column: at.column, path: formatSpecPath(raw.path), message: raw.message };
   };
   const checked = specSchema.safeParse(data, { error: errorMap, reportInput: true });
@@ -96,7 +126,8 @@ export function parseSpec(text: string, source: string): SpecResult {
     ok: true,
     spec,
     locate: (path: SpecPath) => {
-      const at = locateIn(doc as Document, counter, path);
+      const { doc, counter } = parsed();
+      const at = locateIn(doc, counter, path);
       return { file: source, line: at.line, column: at.column };
     },
     warnings: cross.warnings.map(toIssue).sort(byPosition),
