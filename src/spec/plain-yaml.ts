@@ -25,6 +25,12 @@ const notPlain = (): never => {
 const KEY = /^[A-Za-z_$][A-Za-z0-9_.-]*$/;
 const NON_STRING_KEY = /^(?:[Nn]ull|NULL|[Tt]rue|TRUE|[Ff]alse|FALSE|__proto__)$/;
 
+/** A key the reader takes, not yet in `map`. */
+function newKey(map: Record<string, unknown>, key: string): string {
+  if (!KEY.test(key) || NON_STRING_KEY.test(key) || Object.hasOwn(map, key)) notPlain();
+  return key;
+}
+
 // the YAML 1.2 core schema's plain scalars, tried in the yaml library's order (yaml/dist/schema/core)
 const NULL = /^(?:~|[Nn]ull|NULL)?$/;
 const BOOL = /^(?:[Tt]rue|TRUE|[Ff]alse|FALSE)$/;
@@ -118,48 +124,42 @@ class FlowReader {
     return resolvePlain(plain);
   }
 
-  private sequence(): unknown[] {
+  /** The entries of a collection up to `close`, separated by commas (no trailing comma). */
+  private entries(close: string, entry: () => void): void {
     this.at++;
-    const out: unknown[] = [];
     this.spaces();
-    if (this.text[this.at] === "]") {
+    if (this.text[this.at] === close) {
       this.at++;
-      return out;
+      return;
     }
     for (;;) {
-      out.push(this.value());
+      entry();
       this.spaces();
       const c = this.text[this.at++];
-      if (c === "]") return out;
+      if (c === close) return;
       if (c !== ",") notPlain();
       this.spaces();
-      if (this.text[this.at] === "]") notPlain();
+      if (this.text[this.at] === close) notPlain();
     }
   }
 
+  private sequence(): unknown[] {
+    const out: unknown[] = [];
+    this.entries("]", () => out.push(this.value()));
+    return out;
+  }
+
   private mapping(): Record<string, unknown> {
-    this.at++;
     const out: Record<string, unknown> = {};
-    this.spaces();
-    if (this.text[this.at] === "}") {
-      this.at++;
-      return out;
-    }
-    for (;;) {
+    this.entries("}", () => {
       const start = this.at;
       while (this.at < this.text.length && !",[]{}#: ".includes(this.text[this.at]!)) this.at++;
-      const key = this.text.slice(start, this.at);
-      if (!KEY.test(key) || NON_STRING_KEY.test(key) || Object.hasOwn(out, key)) notPlain();
+      const key = newKey(out, this.text.slice(start, this.at));
       if (this.text[this.at] !== ":" || this.text[this.at + 1] !== " ") notPlain();
       this.at += 2;
       out[key] = this.value();
-      this.spaces();
-      const c = this.text[this.at++];
-      if (c === "}") return out;
-      if (c !== ",") notPlain();
-      this.spaces();
-      if (this.text[this.at] === "}") notPlain();
-    }
+    });
+    return out;
   }
 }
 
@@ -225,8 +225,7 @@ class BlockReader {
     for (let line = this.lines[this.at]; line !== undefined && line.indent >= indent; line = this.lines[this.at]) {
       if (line.indent > indent || isItem(line.text)) notPlain();
       const entry = MAP_ENTRY.exec(line.text) ?? notPlain();
-      const key = entry[1]!;
-      if (!KEY.test(key) || NON_STRING_KEY.test(key) || Object.hasOwn(out, key)) notPlain();
+      const key = newKey(out, entry[1]!);
       const rest = entry[2] ?? "";
       this.at++;
       if (rest === "" || rest[0] === "#") out[key] = this.nested(indent, true);
