@@ -1,10 +1,6 @@
 /**
  * The optimizer in the planned formats: its states (first and second moments, momentum buffers), its epsilon,
- * and whether each weight update survives the add into the stored weights (swamping).
- *
- * Swamping (SCIENCE.md §1.1 [X]; Micikevicius et al. 2018 §3.1): w + Δ == w under round-to-nearest-even
- * whenever |Δ| < ½·ulp(w). For w in [2^e, 2^(e+1)) in a format of precision p, ulp(w) = 2^(e−p+1), so the
- * update is lost when |Δ| < 2^(e−p); below the smallest normal the spacing is that of the subnormals.
+ * and whether each weight update survives the add into the stored weights (swamping, src/scale/swamping.ts).
  */
 import type { Format } from "../formats/index.js";
 import { getFormat, roundTo } from "../formats/index.js";
@@ -12,6 +8,9 @@ import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitud
 import { fractionBelow, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
+import { swampedShareOf, UpdateShares } from "./swamping.js";
+
+export { swampedShare } from "./swamping.js";
 
 /** The learning rates the assessment looks at: the smallest and largest of the schedule. */
 export type SchedulePoint = "warm-up start" | "peak" | "end";
@@ -78,53 +77,6 @@ export interface OptimizerCheck {
  * (training barely moves those weights). A state format that flushes more than 1% of second moments is at risk.
  */
 export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 0.01, lostFails: 0.5, momentFlushAtRisk: 0.01 } as const;
-
-/**
- * Share of updates lost when adding updates to weights stored in a format of precision `precision`.
- * `weight` describes the stored weights; `updateBelow(t)` is the share of update elements with |Δ| < t.
- * Sums over the weight's binades: P(|w| in [2^e, 2^(e+1))) · P(|Δ| < 2^(e−p)) (SCIENCE.md §1.1).
- */
-export function swampedShare(
-  weight: MagnitudeProfile,
-  updateBelow: (t: number) => number,
-  format: Pick<Format, "precision" | "emin">,
-): number {
-  const p = format.precision;
-  const subnormalHalfSpacing = 2 ** (format.emin - p);
-  const zeros = weight.zeroFraction;
-  // a zero weight keeps an update only when it reaches half the smallest subnormal
-  let lost = zeros * updateBelow(subnormalHalfSpacing);
-  if (!(weight.rms > 0) || zeros >= 1) return zeros > 0 ? lost : updateBelow(subnormalHalfSpacing);
-  const centre = Math.floor(Math.log2(weight.rms));
-  const low = centre - 40;
-  const high = centre + 12;
-  const F = binadeEdges(weight, low, high);
-  // mass below the lowest binade considered: charge it the loss of that binade (an upper bound, negligible mass)
-  let previous = F[0] as number;
-  let nonzeroLost = previous * updateBelow(2 ** (Math.max(low, format.emin) - p));
-  for (let e = low; e <= high; e++) {
-    const next = e === high ? 1 : (F[e + 1 - low] as number);
-    const mass = Math.max(0, next - previous);
-    previous = next;
-    if (mass === 0) continue;
-    const halfUlp = e < format.emin ? subnormalHalfSpacing : 2 ** (e - p);
-    nonzeroLost += mass * updateBelow(halfUlp);
-  }
-  lost += (1 - zeros) * nonzeroLost;
-  return Math.min(1, Math.max(0, lost));
-}
-
-// P(|w| < 2^e) for e = low … high, per weight profile: every format and point of the schedule reads the same
-// edges of the same weights. A binade is [2^e, 2^(e+1)), so a weight exactly at 2^e belongs to binade e, not e − 1.
-const EDGES = new WeakMap<MagnitudeProfile, { low: number; values: Float64Array }>();
-function binadeEdges(weight: MagnitudeProfile, low: number, high: number): Float64Array {
-  const known = EDGES.get(weight);
-  if (known !== undefined && known.low === low && known.values.length === high - low + 1) return known.values;
-  const values = new Float64Array(high - low + 1);
-  for (let e = low; e <= high; e++) values[e - low] = fractionBelow(weight, 2 ** e * (1 - 2 ** -40));
-  EDGES.set(weight, { low, values });
-  return values;
-}
 
 /**
  * Steps of stochastic rounding until the rounding noise of the summed update falls below 10% of it.
@@ -219,34 +171,29 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
   const [beta1, beta2] = optimizer.betas;
 
+  const points = schedule(optimizer);
+  // the planned format is often binary32 itself: one sum serves both
+  const masterIsBinary32 = master !== null && master.precision === binary32.precision && master.emin === binary32.emin;
+  const shares = new UpdateShares();
   const tensors: WeightOptimizerCheck[] = [];
   for (const { weight, gradient } of weightPairs(prediction)) {
     // the weights at the end of the horizon have grown; their ulp with them
     const w = weight.end;
-    const updates: UpdateLoss[] = schedule(optimizer).map(({ at, lr, firstStep }) => {
+    const updates: UpdateLoss[] = points.map(({ at, lr, firstStep }) => {
       const g = at === "end" ? gradient.end : gradient.start;
       const update = updateProfile(optimizer, g, lr, firstStep);
-      // the four formats read the update's share below powers of two that mostly coincide
-      const shares = new Map<number, number>();
-      const below = (t: number) => {
-        let share = shares.get(t);
-        if (share === undefined) {
-          share = fractionBelow(update, t);
-          shares.set(t, share);
-        }
-        return share;
-      };
-      const withoutMaster = swampedShare(w, below, weightFormat);
-      const withBinary32Master = swampedShare(w, below, binary32);
+      shares.use(update);
+      const withoutMaster = swampedShareOf(w, shares, weightFormat);
+      const withBinary32Master = swampedShareOf(w, shares, binary32);
       return {
         at,
         learningRate: lr,
         updateRms: update.rms,
         relativeLog2: Math.log2(update.rms / w.rms),
-        planned: master ? swampedShare(w, below, master) : withoutMaster,
+        planned: master === null ? withoutMaster : masterIsBinary32 ? withBinary32Master : swampedShareOf(w, shares, master),
         withoutMaster,
         withBinary32Master,
-        compensated: swampedShare(w, below, compensatedFormat),
+        compensated: swampedShareOf(w, shares, compensatedFormat),
         stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
       };
     });
