@@ -8,7 +8,7 @@ import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitud
 import { fractionBelow, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
-import { swampedShareOf, UpdateShares } from "./swamping.js";
+import { SwampingSums } from "./swamping.js";
 
 export { swampedShare } from "./swamping.js";
 
@@ -172,9 +172,8 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
   const [beta1, beta2] = optimizer.betas;
 
   const points = schedule(optimizer);
-  // the planned format is often binary32 itself: one sum serves both
-  const masterIsBinary32 = master !== null && master.precision === binary32.precision && master.emin === binary32.emin;
-  const shares = new UpdateShares();
+  // lost shares: without a master copy, with a binary32 one, as planned, with compensated summation
+  const sums = new SwampingSums([weightFormat, binary32, updateFormat, compensatedFormat]);
   const tensors: WeightOptimizerCheck[] = [];
   for (const { weight, gradient } of weightPairs(prediction)) {
     // the weights at the end of the horizon have grown; their ulp with them
@@ -182,18 +181,16 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
     const updates: UpdateLoss[] = points.map(({ at, lr, firstStep }) => {
       const g = at === "end" ? gradient.end : gradient.start;
       const update = updateProfile(optimizer, g, lr, firstStep);
-      shares.use(update);
-      const withoutMaster = swampedShareOf(w, shares, weightFormat);
-      const withBinary32Master = swampedShareOf(w, shares, binary32);
+      const [withoutMaster = 0, withBinary32Master = 0, planned = 0, compensated = 0] = sums.lost(w, update);
       return {
         at,
         learningRate: lr,
         updateRms: update.rms,
         relativeLog2: Math.log2(update.rms / w.rms),
-        planned: master === null ? withoutMaster : masterIsBinary32 ? withBinary32Master : swampedShareOf(w, shares, master),
+        planned,
         withoutMaster,
         withBinary32Master,
-        compensated: swampedShareOf(w, shares, compensatedFormat),
+        compensated,
         stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
       };
     });

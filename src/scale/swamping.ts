@@ -1,7 +1,7 @@
 /**
- * The swamping sum of the optimizer check, arranged to be cheap: the weight's binade masses once per weight
- * profile, the update's shares below powers of two once per update profile and exponent, and a plain loop over
- * typed arrays for each format that receives the update.
+ * The swamping sums of the optimizer check, arranged to be cheap: the weight's binade masses once per distinct
+ * weight profile, the update's shares below powers of two once per distinct update profile and exponent, and a
+ * plain loop over typed arrays for each format that receives the update.
  *
  * Swamping (SCIENCE.md §1.1 [X]; Micikevicius et al. 2018 §3.1): w + Δ == w under round-to-nearest-even
  * whenever |Δ| < ½·ulp(w). For w in [2^e, 2^(e+1)) in a format of precision p, ulp(w) = 2^(e−p+1), so the
@@ -49,13 +49,8 @@ interface WeightBinades {
   mass: Float64Array;
 }
 
-// Every format and point of the schedule reads the same binades of the same weights.
-const BINADES = new WeakMap<MagnitudeProfile, WeightBinades>();
-
 function weightBinades(weight: MagnitudeProfile): WeightBinades {
   const low = Math.floor(Math.log2(weight.rms)) - BELOW_CENTRE;
-  const known = BINADES.get(weight);
-  if (known !== undefined && known.low === low) return known;
   const below = shareBelow(weight);
   const mass = new Float64Array(BELOW_CENTRE + ABOVE_CENTRE + 1);
   // a binade is [2^e, 2^(e+1)), so a weight exactly at 2^e belongs to binade e, not e − 1
@@ -66,45 +61,104 @@ function weightBinades(weight: MagnitudeProfile): WeightBinades {
     mass[i] = Math.max(0, next - previous);
     previous = next;
   }
-  const binades = { low, under, mass };
-  BINADES.set(weight, binades);
-  return binades;
+  return { low, under, mass };
 }
 
-// Exponents of powers of two a double can take, with room for the shifts by a precision.
-const EXPONENT_LIMIT = 1300;
-
 /**
- * P(|Δ| < 2^k) of one update profile at a time, by k, each computed on first use: the variants (planned, no
- * master copy, binary32 master, compensated) read thresholds 2^(e−p) that coincide up to a shift by the
- * precision. `use` switches to another profile; one table serves a whole check without allocating.
+ * P(|Δ| < 2^k) of one update profile by integer exponent k, each computed on first use: the formats that
+ * receive the update read thresholds 2^(e−p) that coincide up to a shift by the precision.
  */
-export class UpdateShares implements SharesByExponent {
-  private readonly values = new Float64Array(2 * EXPONENT_LIMIT + 1);
-  private readonly stamps = new Uint32Array(2 * EXPONENT_LIMIT + 1);
-  private stamp = 0;
-  private below: (t: number) => number = () => 0;
+class UpdateShares implements SharesByExponent {
+  private base = 0;
+  private values = new Float64Array(0);
+  /** the lost shares already summed against it, by weight */
+  readonly lost = new Map<object, Float64Array>();
 
-  /** Read the shares of `update` from now on. */
-  use(update: MagnitudeProfile): this {
-    this.below = shareBelow(update);
-    this.stamp++;
-    if (this.stamp === 0xffffffff) {
-      this.stamps.fill(0);
-      this.stamp = 1;
+  constructor(private readonly below: (t: number) => number) {}
+
+  at(k: number): number {
+    let i = k - this.base;
+    if (!(i >= 0 && i < this.values.length)) i = this.reach(k);
+    let share = this.values[i] as number;
+    if (Number.isNaN(share)) {
+      share = this.below(2 ** k);
+      this.values[i] = share;
     }
-    return this;
+    return share;
   }
 
-  /** P(|Δ| < 2^k) of the current update profile. */
-  at(k: number): number {
-    const i = k + EXPONENT_LIMIT;
-    if (!(i >= 0 && i < this.values.length)) return this.below(2 ** k);
-    if (this.stamps[i] === this.stamp) return this.values[i] as number;
-    const share = this.below(2 ** k);
-    this.values[i] = share;
-    this.stamps[i] = this.stamp;
-    return share;
+  // widen the table to hold exponent k (the first call sizes it for the usual span of one weight's binades)
+  private reach(k: number): number {
+    const from = Math.min(k - 64, this.values.length === 0 ? k : this.base);
+    const to = Math.max(k + 64, this.base + this.values.length);
+    const values = new Float64Array(to - from).fill(NaN);
+    values.set(this.values, this.base - from);
+    this.base = from;
+    this.values = values;
+    return k - from;
+  }
+}
+
+// Whether two profiles are equal field by field: equal profiles have equal shares below every threshold.
+function sameProfile(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
+  let fields = 0;
+  for (const key in a) {
+    if (a[key as keyof MagnitudeProfile] !== b[key as keyof MagnitudeProfile]) return false;
+    fields++;
+  }
+  for (const _ in b) fields--;
+  return fields === 0;
+}
+
+// Values derived from a profile, shared by every profile equal to it (found by rms, then field by field).
+class ByProfile<T> {
+  private readonly entries = new Map<number, { profile: MagnitudeProfile; value: T }[]>();
+
+  constructor(private readonly derive: (profile: MagnitudeProfile) => T) {}
+
+  get(profile: MagnitudeProfile): T {
+    let list = this.entries.get(profile.rms);
+    if (list === undefined) {
+      list = [];
+      this.entries.set(profile.rms, list);
+    }
+    for (const entry of list) if (entry.profile === profile || sameProfile(entry.profile, profile)) return entry.value;
+    const value = this.derive(profile);
+    list.push({ profile, value });
+    return value;
+  }
+}
+
+/**
+ * The swamping sums of one assessment against a fixed list of formats. Weights of equal profiles (the layers of
+ * one width) share their binade masses, updates of equal profiles (Adam's, which depend on the learning rate
+ * only) their shares, and each pair of the two its sums.
+ */
+export class SwampingSums {
+  private readonly weights = new ByProfile((weight) => ({ weight, binades: weight.rms > 0 ? weightBinades(weight) : null }));
+  private readonly updates = new ByProfile((update) => new UpdateShares(shareBelow(update)));
+
+  // for each format, the first of the list with its precision and range: equal formats share one sum
+  private readonly first: number[];
+
+  constructor(private readonly formats: readonly SwampingFormat[]) {
+    this.first = formats.map((format) => formats.findIndex((f) => f.precision === format.precision && f.emin === format.emin));
+  }
+
+  /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
+  lost(weight: MagnitudeProfile, update: MagnitudeProfile): Float64Array {
+    const w = this.weights.get(weight);
+    const shares = this.updates.get(update);
+    let lost = shares.lost.get(w);
+    if (lost === undefined) {
+      lost = new Float64Array(this.formats.length);
+      for (let i = 0; i < lost.length; i++) {
+        const same = this.first[i] as number;
+        lost[i] = same < i ? (lost[same] as number) : sumLost(w.weight, w.binades, shares, this.formats[i] as SwampingFormat);
+      }
+      shares.lost.set(w, lost);
+    }
+    return lost;
   }
 }
 
@@ -113,14 +167,14 @@ export class UpdateShares implements SharesByExponent {
  * of two read from `shares`: Σ over the weight's binades of P(|w| in [2^e, 2^(e+1))) · P(|Δ| < 2^(e−p))
  * (SCIENCE.md §1.1), zero weights charged P(|Δ| < half the smallest subnormal).
  */
-export function swampedShareOf(weight: MagnitudeProfile, shares: SharesByExponent, format: SwampingFormat): number {
+function sumLost(weight: MagnitudeProfile, binades: WeightBinades | null, shares: SharesByExponent, format: SwampingFormat): number {
   const p = format.precision;
   const subnormal = format.emin - p;
   const zeros = weight.zeroFraction;
   // a zero weight keeps an update only when it reaches half the smallest subnormal
   let lost = zeros === 0 ? 0 : zeros * shares.at(subnormal);
-  if (!(weight.rms > 0) || zeros >= 1) return zeros > 0 ? lost : shares.at(subnormal);
-  const { low, under, mass } = weightBinades(weight);
+  if (!(weight.rms > 0) || zeros >= 1 || binades === null) return zeros > 0 ? lost : shares.at(subnormal);
+  const { low, under, mass } = binades;
   let nonzeroLost = under === 0 ? 0 : under * shares.at(Math.max(low, format.emin) - p);
   for (let i = 0; i < mass.length; i++) {
     const m = mass[i] as number;
@@ -135,8 +189,9 @@ export function swampedShareOf(weight: MagnitudeProfile, shares: SharesByExponen
 /**
  * Share of updates lost when adding updates to weights stored in a format of precision `precision`.
  * `weight` describes the stored weights; `updateBelow(t)` is the share of update elements with |Δ| < t
- * (see {@link swampedShareOf}).
+ * (see {@link SwampingSums}).
  */
 export function swampedShare(weight: MagnitudeProfile, updateBelow: (t: number) => number, format: SwampingFormat): number {
-  return swampedShareOf(weight, { at: (k) => updateBelow(2 ** k) }, format);
+  const binades = weight.rms > 0 ? weightBinades(weight) : null;
+  return sumLost(weight, binades, { at: (k) => updateBelow(2 ** k) }, format);
 }
