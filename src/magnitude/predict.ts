@@ -317,7 +317,9 @@ class Phase {
     const finalQ = averaged ? summedQ / (W * W) : summedQ;
     const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
     const base = { q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian" as const, logVar: wg.logVar };
-    const profile = profileOf({ ...base, q: finalQ }, weight.elements);
+    // an element of the combined gradient is zero only when it is zero in every micro-batch, taken as independent (exact
+    // for the rows an embedding leaves untouched; a lower bound for a ReLU unit, whose off-state persists across them)
+    const profile = profileOf({ ...base, q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W) }, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
     const id = this.build ? `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}` : "";
@@ -325,8 +327,8 @@ class Phase {
     if (this.build) {
       factors.push({
         ratio: outputQ > 0 ? wg.q / outputQ : 0,
-        rule: `weight gradient: ${wg.rule}, E[g²] = N·E[x²]·E[δ²] relative to the gradient at the layer's output`,
-        source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1)",
+        rule: () => `weight gradient: ${textOf(wg.rule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
+        source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
       });
       if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: `${A} accumulation step(s) × ${W} worker(s), gradients ${training.workerGradients}d`, source: "independent sums add in second moment (common practice)" });
     }
@@ -460,7 +462,7 @@ function assumptions(spec: NetworkSpec): string[] {
   const t = spec.training;
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass; these are estimates, so confirm them with a short run.",
-    "Weight gradients are predicted as incoherent sums over batch and positions (independent signs, rms grows as √N); coherentRms gives the aligned upper bracket (SCIENCE.md §2.1).",
+    "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
     "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",

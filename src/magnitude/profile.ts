@@ -15,6 +15,9 @@ export interface Moments {
   bound?: number;
   elementLog2Spread?: number;
   tail?: TailKind;
+  /** cross-sample second moment E[x_n·x_m] (a Signal's or Gradient's `shared`) */
+  shared?: number;
+  positionCorrelation?: number;
 }
 
 const EULER_GAMMA = 0.5772156649015329;
@@ -117,5 +120,7 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   };
   if (m.bound !== undefined) profile.bound = m.bound;
   if (m.shape === "log-normal") profile.elementLog2Spread = m.elementLog2Spread ?? 0;
+  if (m.shared !== undefined && m.shared !== 0 && m.q > 0) profile.sampleCorrelation = Math.min(Math.max(m.shared / m.q, -1), 1);
+  if (m.positionCorrelation !== undefined && m.positionCorrelation !== 0) profile.positionCorrelation = m.positionCorrelation;
   return profile;
 }

@@ -65,6 +65,13 @@ export interface MagnitudeProfile {
    * the upper bracket of SCIENCE.md §2.1; `rms` is the incoherent (independent signs) prediction
    */
   coherentRms?: number;
+  /**
+   * mean correlation of one feature between two samples of the batch (negative below a batch norm, whose gradient sums
+   * to zero over the batch); it makes batch sums partly coherent. Absent: 0
+   */
+  sampleCorrelation?: number;
+  /** mean correlation of one feature between two positions (tokens, pixels) of one sample. Absent: as sampleCorrelation */
+  positionCorrelation?: number;
 }
 
 /** One factor of the chain-rule product that gives a tensor's scale (DESIGN.md: ledger). */

@@ -82,10 +82,13 @@ export function sumLogVar(qa: number, va: number, qb: number, vb: number, shared
 }
 
 function clampCorrelation(c: number): number {
-  return Number.isFinite(c) ? Math.min(Math.max(c, 0), 1) : 0;
+  return Number.isFinite(c) ? Math.min(Math.max(c, -1), 1) : 0;
 }
 
-/** Correlation between two samples of a batch, same feature: the shared part over q (a signal's mean² when unset). */
+/**
+ * Correlation between two samples of a batch, same feature: the shared part over q (a signal's mean² when unset).
+ * Negative below a batch norm, whose gradient sums to zero over the batch.
+ */
 export function sampleCorrelationOf(s: Signal | Gradient): number {
   if (!(s.q > 0)) return 0;
   const shared = s.shared ?? ("mean" in s ? s.mean * s.mean : 0);
@@ -112,5 +115,6 @@ export function meanPairCorrelation(batch: number, positions: number, sampleCorr
  */
 export function correlatedSum(batch: number, positions: number, q: number, sampleCorrelation: number, positionCorrelation: number): number {
   const terms = batch * positions;
-  return terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation));
+  // a sum forced to zero (a gradient below batch norm summed over its batch) has no second moment left
+  return Math.max(terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation)), 0);
 }

@@ -184,6 +184,9 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   let derivativeSecond = stash.derivativeSecond;
   let derivativeZeroFraction = stash.derivativeZeroFraction;
   let rule: Text = () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`;
+  // E[φ'φ'] for two samples and for two positions, which carry the gradient's shared parts
+  let sampleCross = stash.derivativeCross;
+  let positionCross = stash.derivativeCrossPosition;
   const k = output.windowMaximum;
   if (k !== undefined && (name === "relu" || name === "leaky-relu")) {
     // a max-pool after a rectifier passes its gradient to the window's maximum, which is on the positive side
@@ -194,11 +197,14 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     derivativeSecond = 1 - allOff + a * a * allOff;
     derivativeZeroFraction = name === "relu" ? allOff : 0;
     rule = () => `${name} before a max-pool of ${k}: the arg-max is off with probability ${fmt(allOff)}, E[φ'²] = ${fmt(derivativeSecond)}`;
+    // the arg-max gates of two terms are nearly always on, so nearly independent
+    sampleCross = derivativeSecond * derivativeSecond;
+    positionCross = sampleCross;
   }
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
-  if (output.shared !== undefined) gradient.shared = stash.derivativeCross * output.shared;
-  if (stash.derivativeSecond > 0) gradient.positionCorrelation = Math.min((stash.derivativeCrossPosition * positionCorrelationOf(output)) / stash.derivativeSecond, 1);
+  if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
+  if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
   return { gradient, ratio: derivativeSecond, rule };

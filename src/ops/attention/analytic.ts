@@ -4,15 +4,29 @@
  *   logits s = q·k·c with c = 1/√d (scaling "query" or "logits") or 1 ("none"): Var[s] = d·E[q²]·E[k²]·c²,
  *     so unit q and k give variance d unscaled and 1 scaled (Vaswani et al. 2017, §3.2.1 footnote 4);
  *   probabilities p = softmax over the n keys of a row, log-normal: E[p²] ≈ min(e^Var[s]/n², 1/n);
- *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·Σ_j p_j², which is E[v²]/P for uniform attention over P keys and
- *     E[v²]·H_P/P under a causal mask (H_P the harmonic number: row i attends to i keys);
+ *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) for values whose positions are
+ *     correlated by ρ: E[v²]/P for uniform attention over P independent keys, E[v²]·H_P/P under a causal mask (H_P the
+ *     harmonic number: row i attends to i keys), and no shrinking at all for ρ = 1 (rank collapse, Dong et al. 2021);
  *   output = o·W_o (H·d → D).
- * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²].
- * The query and key gradients carry Σ_j p_j², so they are small while attention is spread out.
+ * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²]·(1 − ρ_v): it removes
+ * the part of the values all positions share. The query and key gradients carry Σ_j p_j², so they are small while
+ * attention is spread out; the query gradient sums δ_s·k over keys, where the keys' shared part cancels too (1 − ρ_k).
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { AttentionLayer } from "../../spec/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, sharedOf, sumLogVar, weightOf } from "../common.js";
+import {
+  SOURCES,
+  correlatedSum,
+  factor,
+  fmt,
+  linearGradient,
+  linearOutput,
+  positionCorrelationOf,
+  sampleCorrelationOf,
+  sharedOf,
+  sumLogVar,
+  weightOf,
+} from "../common.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -29,7 +43,16 @@ import type {
 
 const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q²]·E[k²]";
 const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^Var[s]/n², 1/n) (derived; SCIENCE.md §2.10)";
-const AVERAGE_SOURCE = "attention average: E[o²] = E[v²]·Σ_j p_j² (uniform 1/P; causal H_P/P)";
+const AVERAGE_SOURCE = "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice)";
+const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";
+
+/**
+ * Averaging over positions with weights p (Σ p = 1): the part of q all positions share passes, the rest shrinks by
+ * `weights` (Σ p² for one row, or Σ_j p_ij·p_kj for two rows: the correlated sum of SCIENCE.md §2.1; common practice).
+ */
+function positionAverage(q: number, shared: number, weights: number): number {
+  return (q - shared) * weights + shared;
+}
 
 /** Sums over the rows of an attention matrix. */
 interface RowSums {
@@ -37,7 +60,7 @@ interface RowSums {
   sumSquares: number;
   /** E[p²] over the unmasked elements */
   elementSecond: number;
-  /** unmasked elements per row on average */
+  /** unmasked elements per row on average; 1/keys is Σ_j p_ij·p_kj for two rows i ≠ k at initialisation */
   keys: number;
   /** spread of log2(1/n) over unmasked elements (different row lengths under a causal mask) */
   rowLog2Variance: number;
@@ -136,7 +159,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const project = (name: string): { signal: Signal; gain: number } => {
       const w = weightOf(layer, name);
       const gain = ctx.variance(w) * w.fanIn;
-      return { signal: linearOutput(gain * input.q, input.logVar, inner, gain * sharedOf(input)), gain };
+      const signal = linearOutput(gain * input.q, input.logVar, inner, gain * sharedOf(input));
+      signal.positionCorrelation = positionCorrelationOf(input);
+      return { signal, gain };
     };
     const query = project("query");
     const key = project("key");
@@ -163,20 +188,25 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       logVar: 0,
       gaussian: false,
     };
-    // averaging keeps what all positions share and shrinks the rest by Σ_j p_j²
+    // averaging keeps what all positions of a sample share and shrinks the rest by Σ_j p_j²
     const valueShared = value.signal.shared ?? 0;
+    const valuePositionShared = Math.max(positionCorrelationOf(value.signal) * value.signal.q, valueShared);
+    const headsQ = positionAverage(value.signal.q, valuePositionShared, rows.sumSquares);
     const heads: Signal = {
-      q: (value.signal.q - valueShared) * rows.sumSquares + valueShared,
+      q: headsQ,
       shared: valueShared,
+      positionCorrelation: headsQ > 0 ? positionAverage(value.signal.q, valuePositionShared, 1 / rows.keys) / headsQ : 0,
       mean: 0,
       zeroFraction: 0,
       shape: "gaussian",
       logVar: value.signal.logVar,
       gaussian: true,
     };
+    const averageRatio = value.signal.q > 0 ? headsQ / value.signal.q : rows.sumSquares;
     const wo = weightOf(layer, "output");
     const outGain = ctx.variance(wo) * wo.fanIn;
     const output = linearOutput(outGain * heads.q, heads.logVar, D, outGain * valueShared);
+    output.positionCorrelation = heads.positionCorrelation ?? 0;
 
     const qFactor = (gain: number, name: string): Factor => factor(gain, () => `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
     const logitFactor = factor(
@@ -185,7 +215,12 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       SOURCE,
     );
     const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, () => `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
-    const headFactor = factor(rows.sumSquares, () => `attention average: Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}`, AVERAGE_SOURCE);
+    const headFactor = factor(
+      averageRatio,
+      () =>
+        `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"} and positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)}`,
+      AVERAGE_SOURCE,
+    );
     const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
 
     const inner_: InnerTensor[] = [
@@ -277,17 +312,28 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const outGain = ctx.variance(wo) * wo.fanOut;
     const headsQ = outGain * output.q;
     const heads = linearGradient(headsQ, output.logVar, inner);
-    const valueQ = headsQ * stash.rows.sumSquares;
+    heads.positionCorrelation = positionCorrelationOf(output);
+    // δv_j = Σ_i p_ij·δo_i: an average over rows, like the forward one
+    const headsPositionShared = headsQ * heads.positionCorrelation;
+    const valueQ = positionAverage(headsQ, headsPositionShared, stash.rows.sumSquares);
+    const valuePositionCorrelation = valueQ > 0 ? positionAverage(headsQ, headsPositionShared, 1 / stash.rows.keys) / valueQ : 0;
     const probQ = d * headsQ * stash.value.q;
     const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
-    const logitQ = stash.rows.elementSecond * probQ * unmaskedShare;
-    const queryQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * stash.key.q;
-    const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * stash.query.q;
+    const valueApart = 1 - positionCorrelationOf(stash.value);
+    const keyApart = 1 - positionCorrelationOf(stash.key);
+    const logitQ = stash.rows.elementSecond * probQ * unmaskedShare * valueApart;
+    const queryQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
+    const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
+    const valueGradient: Gradient = { ...g(valueQ), positionCorrelation: valuePositionCorrelation };
     const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
     const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
-    const logitFactor = factor(stash.rows.elementSecond * unmaskedShare, () => `softmax Jacobian: E[p²] = ${fmt(stash.rows.elementSecond)}`, SOFTMAX_SOURCE);
+    const logitFactor = factor(
+      stash.rows.elementSecond * unmaskedShare * valueApart,
+      () => `softmax Jacobian: E[p²]·(1 − ρ_v) = ${fmt(stash.rows.elementSecond)}·${fmt(valueApart)}`,
+      valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
+    );
     const innerGradients: InnerGradient[] = [
       { suffix: "heads", shape: projection, elements: projectionElements, gradient: heads, factors: [headFactor] },
       {
@@ -303,47 +349,58 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         shape: projection,
         elements: projectionElements,
         gradient: g(queryQ),
-        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²]·E[k²] = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
       },
       {
         suffix: "key",
         shape: projection,
         elements: projectionElements,
         gradient: g(keyQ),
-        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²]·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
       },
       {
         suffix: "value",
         shape: projection,
         elements: projectionElements,
-        gradient: g(valueQ),
-        factors: [headFactor, factor(stash.rows.sumSquares, () => `attention value: Σ_i p_ij² = ${fmt(stash.rows.sumSquares)}`, AVERAGE_SOURCE)],
+        gradient: valueGradient,
+        factors: [
+          headFactor,
+          factor(headsQ > 0 ? valueQ / headsQ : 0, () => `attention value: Σ_i p_ij² + ρ·(1 − Σ_i p_ij²) = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}`, AVERAGE_SOURCE),
+        ],
       },
     ];
-    const inputQ = ctx.variance(wq) * wq.fanOut * queryQ + ctx.variance(wk) * wk.fanOut * keyQ + ctx.variance(wv) * wv.fanOut * valueQ;
+    const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
+    const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
+    const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
     const N = ctx.batch * P;
-    const wg = (weight: string, x: number, delta: number, logVar: number): WeightGradientMoment => ({
+    // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
+    // key j's own value deviation, independent between keys
+    const queryGradient: Gradient = { ...g(queryQ), positionCorrelation: heads.positionCorrelation ?? 0 };
+    const keyGradient: Gradient = { ...g(keyQ), positionCorrelation: 0 };
+    const wg = (weight: string, x: Signal, deltaQ: number, delta: Gradient, logVar: number): WeightGradientMoment => ({
       weight,
-      q: N * x * delta,
-      coherentQ: N * N * x * delta,
+      q: correlatedSum(ctx.batch, P, x.q * deltaQ, sampleCorrelationOf(x) * sampleCorrelationOf(delta), positionCorrelationOf(x) * positionCorrelationOf(delta)),
+      coherentQ: N * N * x.q * deltaQ,
       terms: N,
       zeroFraction: 0,
       logVar,
-      rule: () => `sum of ${N} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share`,
     });
     const D = layer.input.layout === "features" ? layer.input.features : 1;
+    const input = linearGradient(inputQ, heads.logVar, D);
+    input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
     return {
-      input: linearGradient(inputQ, heads.logVar, D),
+      input,
       factors: [
         headFactor,
         factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward),
       ],
       inner: innerGradients,
       weightGradients: [
-        wg("query", stash.input.q, queryQ, stash.input.logVar + heads.logVar),
-        wg("key", stash.input.q, keyQ, stash.input.logVar + heads.logVar),
-        wg("value", stash.input.q, valueQ, stash.input.logVar + heads.logVar),
-        wg("output", stash.heads.q, output.q, stash.heads.logVar + output.logVar),
+        wg("query", stash.input, queryQ, queryGradient, stash.input.logVar + heads.logVar),
+        wg("key", stash.input, keyQ, keyGradient, stash.input.logVar + heads.logVar),
+        wg("value", stash.input, valueQ, valueGradient, stash.input.logVar + heads.logVar),
+        wg("output", stash.heads, output.q, output, stash.heads.logVar + output.logVar),
       ],
     };
   },

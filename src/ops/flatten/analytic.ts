@@ -1,4 +1,5 @@
 /** Flatten: a reshape; every moment passes through unchanged. */
+import { sampleCorrelationOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, Signal } from "../types.js";
 
 export const flattenRule: AnalyticRule<null> = {
@@ -6,6 +7,7 @@ export const flattenRule: AnalyticRule<null> = {
     return { output: input, factors: [], role: "activation", inner: [], hazards: [], stash: null };
   },
   backward(_ctx, _layer, _stash, output: Gradient): BackwardResult {
-    return { input: output, factors: [], inner: [], weightGradients: [] };
+    // different features of the flat gradient become different positions: they share only what samples share
+    return { input: { ...output, positionCorrelation: sampleCorrelationOf(output) }, factors: [], inner: [], weightGradients: [] };
   },
 };

@@ -7,9 +7,21 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { GatedFeedForwardLayer } from "../../spec/types.js";
-import { SOURCES, factor, fmt, linearGradient, linearOutput, sharedOf, weightOf } from "../common.js";
+import {
+  SOURCES,
+  correlatedSum,
+  factor,
+  fmt,
+  linearGradient,
+  linearOutput,
+  positionCorrelationOf,
+  sampleCorrelationOf,
+  sharedOf,
+  weightOf,
+} from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
+import { crossMoments } from "../activation/analytic.js";
 
 const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field; SCIENCE.md §2.1, §2.9)";
 
@@ -23,6 +35,8 @@ export interface GatedStash {
   gateSecond: number;
   gateDerivativeSecond: number;
   gateZeroFraction: number;
+  /** two positions of one sample: E[φ(g)φ(g')] and E[φ'(g)φ'(g')] at the input's position correlation c, and c */
+  positionCross: { value: number; derivative: number; correlation: number };
 }
 
 function slopeOf(spec: GatedFeedForwardLayer): number {
@@ -50,6 +64,11 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const up = linearOutput(upGain * input.q, input.logVar, spec.hidden, upGain * sharedOf(input));
     const m = ctx.moments(spec.activation, gate.q, slopeOf(spec));
     const kappa = activationKappa(m);
+    // gate and up of two positions are correlated like the input (c); the product's share is E[φ(g)φ(g')]·c·E[u²]
+    const correlation = positionCorrelationOf(input);
+    gate.positionCorrelation = correlation;
+    up.positionCorrelation = correlation;
+    const positionCross = { ...crossMoments(spec.activation, slopeOf(spec), gate.q, correlation, m), correlation };
     const product: Signal = {
       q: m.second * up.q,
       shared: m.mean * m.mean * (up.shared ?? 0),
@@ -61,8 +80,10 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       logVar: input.logVar + (kappa.forward + 2) / spec.hidden,
       gaussian: false,
     };
+    if (m.second > 0) product.positionCorrelation = Math.min((positionCross.value * correlation) / m.second, 1);
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
+    output.positionCorrelation = product.positionCorrelation ?? 0;
     const gateFactor = factor(gateGain, () => `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
     const upFactor = factor(upGain, () => `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
     const productFactor = factor(m.second, () => `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);
@@ -107,6 +128,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
         gateSecond: m.second,
         gateDerivativeSecond: m.derivativeSecond,
         gateZeroFraction: m.zeroFraction,
+        positionCross,
       },
     };
   },
@@ -119,8 +141,14 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const productGradient = linearGradient(downGain * output.q, output.logVar, spec.hidden);
     const upQ = stash.gateSecond * productGradient.q;
     const gateQ = stash.gateDerivativeSecond * stash.up.q * productGradient.q;
+    // two positions: δ_up shares E[φ(g)φ(g')]·(δ_h's share), δ_gate E[φ'(g)φ'(g')]·c·E[u²]·(δ_h's share)
+    const hShare = positionCorrelationOf(output);
+    productGradient.positionCorrelation = hShare;
+    const cross = stash.positionCross;
     const upGradient: Gradient = { q: upQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
+    upGradient.positionCorrelation = stash.gateSecond > 0 ? Math.min((cross.value * hShare) / stash.gateSecond, 1) : 0;
+    gateGradient.positionCorrelation = stash.gateDerivativeSecond > 0 ? Math.min((cross.derivative * cross.correlation * hShare) / stash.gateDerivativeSecond, 1) : 0;
     const downFactor = factor(downGain, () => `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
     const inner: InnerGradient[] = [
       { suffix: "product", shape: hiddenShape, elements: hiddenElements, gradient: productGradient, factors: [downFactor] },
@@ -133,26 +161,30 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
         factors: [downFactor, factor(stash.gateDerivativeSecond * stash.up.q, () => `gate: E[φ'(g)²]·E[u²] = ${fmt(stash.gateDerivativeSecond)}·${fmt(stash.up.q)}`, SOURCE)],
       },
     ];
-    const inputQ = ctx.variance(wg) * wg.fanOut * gateQ + ctx.variance(wu) * wu.fanOut * upQ;
+    const gatePart = ctx.variance(wg) * wg.fanOut * gateQ;
+    const upPart = ctx.variance(wu) * wu.fanOut * upQ;
+    const inputQ = gatePart + upPart;
     const N = ctx.batch * P;
-    const wgm = (weight: string, x: number, delta: number, zeroFraction: number): WeightGradientMoment => ({
+    const wgm = (weight: string, x: Signal, delta: Gradient): WeightGradientMoment => ({
       weight,
-      q: N * x * delta,
-      coherentQ: N * N * x * delta,
+      q: correlatedSum(ctx.batch, P, x.q * delta.q, sampleCorrelationOf(x) * sampleCorrelationOf(delta), positionCorrelationOf(x) * positionCorrelationOf(delta)),
+      coherentQ: N * N * x.q * delta.q,
       terms: N,
-      zeroFraction,
+      zeroFraction: 0,
       logVar: stash.input.logVar + productGradient.logVar,
-      rule: () => `sum of ${N} products (batch × positions) of input and gradient`,
+      rule: () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share`,
     });
     const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
+    const input = linearGradient(inputQ, productGradient.logVar, D);
+    input.positionCorrelation = inputQ > 0 ? (gatePart * (gateGradient.positionCorrelation ?? 0) + upPart * (upGradient.positionCorrelation ?? 0)) / inputQ : 0;
     return {
-      input: linearGradient(inputQ, productGradient.logVar, D),
+      input,
       factors: [downFactor, factor(ratio, () => `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
       inner,
       weightGradients: [
-        wgm("gate", stash.input.q, gateQ, 0),
-        wgm("up", stash.input.q, upQ, 0),
-        wgm("down", stash.product.q, output.q, 0),
+        wgm("gate", stash.input, gateGradient),
+        wgm("up", stash.input, upGradient),
+        wgm("down", stash.product, output),
       ],
     };
   },

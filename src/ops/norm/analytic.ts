@@ -8,7 +8,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
-import { factor, fmt, maybeWeight, sharedOf, weightOf } from "../common.js";
+import { correlatedSum, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -19,6 +19,8 @@ export interface NormStash {
   /** E[x̂²] of the normalised values */
   normalisedSecond: number;
   gainSquared: number;
+  /** correlation of the normalised values between two samples and between two positions of one sample */
+  normalisedCorrelation: { sample: number; position: number };
 }
 
 const SOURCE = "normalisation resets the scale to the gain (layer definitions; SCIENCE.md §2.7)";
@@ -66,6 +68,13 @@ export const normRule: AnalyticRule<NormStash> = {
           gaussian: input.gaussian,
         };
     if (!centred && input.bound !== undefined) output.bound = input.bound * Math.sqrt(gainSquared / denominator);
+    // each position is divided by (nearly) the same statistic, so the part two positions share scales like q, less
+    // what the centring removes: each sample's feature mean (layer norm) or each feature's batch mean (batch norm)
+    const normalisedPositionShared = Math.max(positionCorrelationOf(input) * input.q - removed, 0) / denominator;
+    if (q > 0) output.positionCorrelation = Math.min((normalisedPositionShared * gainSquared + biasVariance) / q, 1);
+    const normalisedSampleShared = gainSquared > 0 ? Math.max((output.shared ?? 0) - biasVariance, 0) / gainSquared : 0;
+    const normalisedCorrelation =
+      normalisedSecond > 0 ? { sample: Math.min(normalisedSampleShared / normalisedSecond, 1), position: Math.min(normalisedPositionShared / normalisedSecond, 1) } : { sample: 0, position: 0 };
     const terms = normTerms(layer, ctx.batch);
     return {
       output,
@@ -88,16 +97,24 @@ export const normRule: AnalyticRule<NormStash> = {
           detail: () => `${layer.family} sums the squares of ${terms} elements per statistic`,
         },
       ],
-      stash: { input, denominator, normalisedSecond, gainSquared },
+      stash: { input, denominator, normalisedSecond, gainSquared, normalisedCorrelation },
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: NormStash, output: Gradient): BackwardResult {
     const ratio = stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
-    const terms = ctx.batch * positionCount(layer.input);
+    const positions = positionCount(layer.input);
+    const terms = ctx.batch * positions;
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
-        q: terms * stash.normalisedSecond * output.q,
+        // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
+        q: correlatedSum(
+          ctx.batch,
+          positions,
+          stash.normalisedSecond * output.q,
+          stash.normalisedCorrelation.sample * sampleCorrelationOf(output),
+          stash.normalisedCorrelation.position * positionCorrelationOf(output),
+        ),
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
@@ -108,7 +125,7 @@ export const normRule: AnalyticRule<NormStash> = {
     if (maybeWeight(layer, "bias") !== undefined) {
       weightGradients.push({
         weight: "bias",
-        q: terms * output.q,
+        q: correlatedSum(ctx.batch, positions, output.q, sampleCorrelationOf(output), positionCorrelationOf(output)),
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
@@ -125,6 +142,14 @@ export const normRule: AnalyticRule<NormStash> = {
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
     else if (output.shared !== undefined) input.shared = ratio * output.shared;
+    // positions keep what they share, less (batch norm) the part every sample shares, which the batch mean removes
+    const sampleShare = layer.family === "batch-norm" ? Math.max(sampleCorrelationOf(output), 0) : 0;
+    input.positionCorrelation = sampleShare < 1 ? Math.max(positionCorrelationOf(output) - sampleShare, 0) / (1 - sampleShare) : 0;
+    if (layer.family === "batch-norm" && terms > positions) {
+      // and each channel's gradient sums to zero over batch × pixels (Ioffe & Szegedy 2015, backward pass): samples are
+      // anti-correlated by what one sample's pixels share, −(1 + (P − 1)ρ_position)/((B − 1)·P)
+      input.shared = (-input.q * (1 + (positions - 1) * input.positionCorrelation)) / (terms - positions);
+    }
     return {
       input,
       factors: [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],

@@ -3,13 +3,14 @@
  * Average: the mean passes, the fluctuation shrinks by 1/k for independent elements (neighbouring elements are
  * often correlated, so this is a lower estimate). Max: order statistics of k independent Gaussian elements
  * (Gumbel 1958 for the large-k limit; computed here by quadrature for the exact k).
- * Backward: average spreads each gradient over its k inputs (÷k²); max routes it to the arg-max only, so the input
- * gradient is exactly zero elsewhere.
+ * Backward: average spreads each gradient over its k inputs (÷k²), the same value to every pixel of a window, so
+ * the input gradient is fully correlated within windows; max routes it to the arg-max only, so the input gradient is
+ * exactly zero elsewhere.
  */
-import { sampleElements } from "../../graph/shape.js";
+import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { factor, fmt, sharedOf } from "../common.js";
+import { factor, fmt, positionCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k independent elements (variance ÷ k; approximation)";
@@ -64,8 +65,8 @@ export const poolRule: AnalyticRule<null> = {
     let rule: string;
     let source: string;
     if (layer.family === "average-pool") {
-      // neighbours share each channel's batch mean; only the rest averages down
-      const shared = Math.min(sharedOf(input), input.q);
+      // what the pixels of a window share passes; only the rest averages down (variance of a mean; common practice)
+      const shared = Math.min(positionCorrelationOf(input) * input.q, input.q);
       q = (input.q - shared) / k + shared;
       zeroFraction = Math.pow(input.zeroFraction, k);
       rule = `average of ${k}: variance ÷ ${k}`;
@@ -109,16 +110,26 @@ export const poolRule: AnalyticRule<null> = {
     const share = sampleElements(layer.output) / sampleElements(layer.input);
     if (layer.family === "average-pool") {
       const ratio = share / k;
+      // a pair of input pixels shares all of one output gradient when in one window (k − 1 partners of P − 1), else what
+      // two output pixels share: the mean pairwise correlation of the copied gradient
+      const pixels = positionCount(layer.input);
+      const within = Math.min(k, pixels) - 1;
+      const positionCorrelation = pixels > 1 ? (within + (pixels - 1 - within) * positionCorrelationOf(output)) / (pixels - 1) : positionCorrelationOf(output);
       return {
-        input: { ...output, q: output.q * ratio, shared: (output.shared ?? 0) * ratio, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
+        input: { ...output, q: output.q * ratio, shared: (output.shared ?? 0) * ratio, positionCorrelation, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
         factors: [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
         inner: [],
         weightGradients: [],
       };
     }
     const reached = Math.min(share, 1);
+    // routing moves each output gradient to one input, so sums over pixels and batch keep their second moment while
+    // the terms multiply by 1/share: the mean pairwise correlations shrink by share (by (P_out − 1)/(P_in − 1) for pixels)
+    const pixelsIn = positionCount(layer.input);
+    const pixelsOut = positionCount(layer.output);
+    const positionCorrelation = pixelsIn > 1 ? (positionCorrelationOf(output) * (pixelsOut - 1)) / (pixelsIn - 1) : positionCorrelationOf(output);
     return {
-      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share, zeroFraction: 1 - reached * (1 - output.zeroFraction), windowMaximum: k },
+      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share * share, positionCorrelation, zeroFraction: 1 - reached * (1 - output.zeroFraction), windowMaximum: k },
       factors: [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
       inner: [],
       weightGradients: [],

@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
-import { factor, fmt, sharedOf, sumLogVar } from "../common.js";
+import { factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -43,6 +43,8 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       logVar: sumLogVar(input.q, input.logVar, branchQ, f.logVar, shared),
       gaussian: input.gaussian && f.gaussian,
     };
+    // what two positions share adds up like the second moments
+    if (q > 0) output.positionCorrelation = Math.min((positionCorrelationOf(input) * input.q + positionCorrelationOf(f) * branchQ + 2 * alpha * input.mean * f.mean) / q, 1);
     const ratio = input.q > 0 ? q / input.q : 0;
     return {
       output,
@@ -64,6 +66,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       logVar: sumLogVar(output.q, output.logVar, g.q, g.logVar, 1),
       shared: (output.shared ?? 0) + (g.shared ?? 0),
     };
+    if (q > 0) input.positionCorrelation = (positionCorrelationOf(output) * output.q + positionCorrelationOf(g) * g.q) / q;
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
       input,
