@@ -9,15 +9,31 @@
  * path through the format module's rounding. The counts are therefore exact, at the price of a histogram increment.
  */
 import { binadeOf } from "../formats/index.js";
+import type { ChannelAccumulator } from "./channels.js";
 import { CAST_CLASS, CAST_CLASS_COUNT, type CastClass, type CastTarget } from "./classes.js";
+import {
+  countChunkChannels,
+  countRun,
+  INFINITY_BITS,
+  MERGE_EVERY,
+  MIN_NORMAL_BITS,
+  runResult,
+  valueOfBits,
+  FLAG,
+  WAYS,
+} from "./fast32.js";
 
 const BUCKETS = 32768;
 /** binade k counts magnitudes in [2^k, 2^(k+1)); binary64 spans k = −1074 … 1023 */
 const BINADE_OFFSET = 1100;
 const BINADES = 2200;
 
-/** elements per block of the fast path: a block that touches a bucket a boundary cuts is classified again, alone */
-const BLOCK = 4096;
+/** binary32 elements per counting pass at most (so flagged positions fit a bounded buffer) */
+const SLICE = 1 << 20;
+/** shortest channel run counted in the same pass as the channel squares; shorter runs take a second pass */
+const MIN_FUSED_RUN = 64;
+/** positions flagged by the counting pass; shared, since a pass runs to its end before another starts */
+let flagged = new Int32Array(0);
 
 const SLOW_IMPURE = 1;
 const SLOW_SPECIAL = 2;
@@ -39,8 +55,10 @@ export interface BucketPlan {
   cuts: Float64Array;
   /** per bucket and target: the class from `cuts` upward */
   above: Uint8Array;
-  /** the buckets a boundary cuts, ascending */
-  impure: Int32Array;
+  /** binary32 bucket counters at rest: WAYS per bucket, FLAG for the buckets a boundary cuts, 0 elsewhere */
+  base: Int32Array;
+  /** counters at rest, left by finished accumulators for the next ones */
+  spareCounts: Int32Array[];
 }
 
 const plans = new WeakMap<readonly CastTarget[], Map<number, BucketPlan>>();
@@ -146,8 +164,9 @@ function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
     cuts[b * T + t] = single ? cut : NaN;
     above[b * T + t] = cutClass;
   }
-  const impure = Int32Array.from(new Set(cutsFor.map(([b]) => b))).sort();
-  return { width, targets, slow, classes, binade, cuts, above, impure };
+  const base = new Int32Array(width === 32 ? BUCKETS * WAYS : 0);
+  if (width === 32) for (const [b] of cutsFor) base.fill(FLAG, b * WAYS, (b + 1) * WAYS);
+  return { width, targets, slow, classes, binade, cuts, above, base, spareCounts: [] };
 }
 
 /** Per-target cast counts of one tensor. */
@@ -191,186 +210,128 @@ export class TensorAccumulator {
   private maxAbs = -1;
   private minNonzero = Infinity;
 
+  /** binary32 bucket counters (WAYS per bucket, from plan.base), merged into `hist` now and then; null when merged */
+  private counts: Int32Array | null = null;
+  /** elements counted since the last merge, and the extremes of their |bits| (the bucket range to merge) */
+  private unmerged = 0;
+  private unmergedMax = 0;
+  private unmergedMin = 0x7fffffff;
+
   constructor(private readonly plan: BucketPlan) {
     this.classCounts = new Float64Array(plan.targets.length * CAST_CLASS_COUNT);
-    this.impureSeen = new Uint32Array(plan.impure.length);
   }
 
-  /** Feed the next values (binary32 values for a width-32 plan, binary64 for width 64). */
-  add(values: Float32Array | Float64Array): void {
-    this.elements += values.length;
+  /**
+   * Feed the next values (binary32 values for a width-32 plan, binary64 for width 64). With `channels`, the same
+   * values (storage index `first` onward) go to its per-channel figures too, in the same pass for binary32.
+   */
+  add(values: Float32Array | Float64Array, channels?: ChannelAccumulator, first = 0): void {
     if (values instanceof Float32Array) {
       if (this.plan.width !== 32) throw new TypeError("a binary64 bucket plan was given binary32 values");
-      const blocks = Math.ceil(values.length / BLOCK);
-      if (this.pendingBlocks.length < blocks) {
-        this.pendingBlocks = new Int32Array(blocks);
-        this.pendingBuckets = new Int32Array(blocks);
+      for (let start = 0; start < values.length; start += SLICE) {
+        const slice = values.length <= SLICE ? values : values.subarray(start, start + SLICE);
+        this.elements += slice.length;
+        this.add32(slice, channels, first + start);
       }
-      this.add32(values);
     } else {
       if (this.plan.width !== 64) throw new TypeError("a binary32 bucket plan was given binary64 values");
+      this.elements += values.length;
       this.add64(values);
+      channels?.add(values, first);
     }
   }
 
-  /** per-chunk counts for the fast path; all zero between calls */
-  private readonly chunkHist = new Uint32Array(BUCKETS);
-  /** counts of the impure buckets at the end of the last block */
-  private readonly impureSeen: Uint32Array;
-  /** starts of the blocks of the current chunk that touched impure buckets */
-  private pendingBlocks = new Int32Array(0);
-  /** for each pending block: the one impure bucket it touched, or −2 for several */
-  private pendingBuckets = new Int32Array(0);
-
   /**
-   * binary32 values. The fast pass counts buckets, squares and extremes with no per-element branch; the chunk then
-   * takes the exact per-element path only if it holds zeros, binary32 subnormals, infinities or NaNs (seen from its
-   * extremes), and a short extra pass classifies the elements of buckets a boundary cuts, when any were seen.
+   * binary32 values: one counting pass (with the channel squares when the runs are long enough to pay for a call
+   * each), then the exact per-element path for the few flagged elements, and for subnormal inputs, infinities and
+   * NaNs when the chunk's extremes show any.
    */
-  private add32(values: Float32Array): void {
+  private add32(values: Float32Array, channels: ChannelAccumulator | undefined, first: number): void {
     const n = values.length;
     if (n === 0) return;
+    if (this.unmerged + n > MERGE_EVERY) this.merge();
+    const counts = (this.counts ??= this.plan.spareCounts.pop() ?? Int32Array.from(this.plan.base));
+    if (flagged.length < n) flagged = new Int32Array(Math.max(n, 2 * flagged.length));
     const bits = new Int32Array(values.buffer, values.byteOffset, n);
-    const chunk = this.chunkHist;
-    const impure = this.plan.impure;
-    const seen = this.impureSeen;
-    seen.fill(0);
-    let pending = 0;
-    let sum0 = 0;
-    let sum1 = 0;
-    let maxU = 0;
-    let minU = 0x7fffffff;
-    for (let start = 0; start < n; start += BLOCK) {
-      const end = Math.min(n, start + BLOCK);
-      let i = start;
-      for (; i + 1 < end; i += 2) {
-        const u0 = bits[i]! & 0x7fffffff;
-        const u1 = bits[i + 1]! & 0x7fffffff;
-        chunk[u0 >> 16] = chunk[u0 >> 16]! + 1;
-        chunk[u1 >> 16] = chunk[u1 >> 16]! + 1;
-        maxU = u0 > maxU ? u0 : maxU;
-        maxU = u1 > maxU ? u1 : maxU;
-        minU = u0 < minU ? u0 : minU;
-        minU = u1 < minU ? u1 : minU;
-        const x0 = values[i]!;
-        const x1 = values[i + 1]!;
-        sum0 += x0 * x0;
-        sum1 += x1 * x1;
-      }
-      if (i < end) {
-        const u = bits[i]! & 0x7fffffff;
-        chunk[u >> 16] = chunk[u >> 16]! + 1;
-        maxU = u > maxU ? u : maxU;
-        minU = u < minU ? u : minU;
-        const x = values[i]!;
-        sum0 += x * x;
-      }
-      // a block that put anything into a bucket a boundary cuts is classified element by element below
-      // (-1: none; a bucket; -2: several)
-      let hit = -1;
-      for (let k = 0; k < impure.length; k++) {
-        const c = chunk[impure[k]!]!;
-        if (c !== seen[k]) {
-          seen[k] = c;
-          hit = hit === -1 ? impure[k]! : -2;
-        }
-      }
-      if (hit !== -1) {
-        this.pendingBlocks[pending] = start;
-        this.pendingBuckets[pending++] = hit;
-      }
+    let sum: number;
+    if (channels && channels.sums.fastSum.length >= MIN_FUSED_RUN) {
+      const { fastSum, slowSum, slowMaxSquare } = channels.sums;
+      sum = countChunkChannels(values, bits, counts, flagged, first, fastSum, slowSum, slowMaxSquare);
+    } else {
+      sum = countRun(values, bits, counts, flagged);
+      channels?.add(values, first);
     }
-    const lowBucket = minU >> 16;
-    const highBucket = maxU >> 16;
-    // zero and binary32 subnormals sit below the smallest normal pattern, infinities and NaNs from 0x7f800000 up
-    if (minU < 0x00800000 || maxU >= 0x7f800000) {
-      chunk.fill(0, lowBucket, highBucket + 1);
-      this.exact32(values, bits);
-      return;
-    }
-    const hist = this.hist;
-    for (let b = lowBucket; b <= highBucket; b++) {
-      const c = chunk[b]!;
-      if (c !== 0) {
-        hist[b] = hist[b]! + c;
-        chunk[b] = 0;
+    const chunkMax = runResult[0]!;
+    const chunkMin = runResult[1]!;
+    const nFlagged = runResult[2]!;
+    // an entry stands for the up to four elements from it on (one step of the counting loop); each is looked at once
+    const slow = this.plan.slow;
+    let next = 0;
+    for (let k = 0; k < nFlagged; k++) {
+      const entry = flagged[k]!;
+      const stop = Math.min(n, entry + 4);
+      for (let i = Math.max(entry, next); i < stop; i++) {
+        const b = (bits[i]! & 0x7fffffff) >>> 16;
+        if (slow[b] === SLOW_IMPURE) this.classifyImpure(Math.abs(values[i]!), b);
       }
+      next = stop;
     }
-    for (let p = 0; p < pending; p++) {
-      const start = this.pendingBlocks[p]!;
-      this.impurePass32(values, bits, start, Math.min(n, start + BLOCK), this.pendingBuckets[p]!);
-    }
-    this.sumOfSquares += sum0 + sum1;
-    const extremes = new Float32Array(Int32Array.of(maxU, minU).buffer);
-    if (extremes[0]! > this.maxAbs) this.maxAbs = extremes[0]!;
-    if (extremes[1]! < this.minNonzero) this.minNonzero = extremes[1]!;
+    // chunkMin is the smallest nonzero |bits| less one: below MIN_NORMAL_BITS − 1 means a subnormal input
+    const special = chunkMax >= INFINITY_BITS || chunkMin < MIN_NORMAL_BITS - 1;
+    const finiteMax = special ? this.specials32(values, bits, counts) : chunkMax;
+    this.sumOfSquares += sum;
+    if (finiteMax >= 0 && valueOfBits(finiteMax) > this.maxAbs) this.maxAbs = valueOfBits(finiteMax);
+    if (chunkMin + 1 < INFINITY_BITS && valueOfBits(chunkMin + 1) < this.minNonzero) this.minNonzero = valueOfBits(chunkMin + 1);
+    this.unmerged += n;
+    if (chunkMax > this.unmergedMax) this.unmergedMax = chunkMax;
+    if (chunkMin < this.unmergedMin) this.unmergedMin = chunkMin;
   }
 
   /**
-   * Classify the elements of values[start, end) that fall in buckets a boundary cuts (already in the histogram);
-   * `only` is the one such bucket the block touched, or −2 when it touched several.
+   * The exact path for the subnormal inputs, infinities and NaNs of a chunk: each is taken out of the bucket counters
+   * and counted apart. Returns the largest finite |bits| of the chunk (−1 when none).
    */
-  private impurePass32(values: Float32Array, bits: Int32Array, start: number, end: number, only: number): void {
-    if (only >= 0) {
-      // one bucket: a register comparison per element instead of a table lookup
-      for (let i = start; i < end; i++) {
-        if ((bits[i]! & 0x7fffffff) >> 16 === only) this.classifyImpure(Math.abs(values[i]!), only);
-      }
-      return;
-    }
-    const slow = this.plan.slow;
-    for (let i = start; i < end; i++) {
-      const b = (bits[i]! & 0x7fffffff) >> 16;
-      if (slow[b] === SLOW_IMPURE) this.classifyImpure(Math.abs(values[i]!), b);
-    }
-  }
-
-  /** Count one magnitude of an impure bucket into the class counts, by the bucket's cut points. */
-  private classifyImpure(a: number, b: number): void {
-    const { targets, cuts, above, classes } = this.plan;
-    const T = targets.length;
-    const counts = this.classCounts;
-    for (let t = 0; t < T; t++) {
-      const k = b * T + t;
-      const cut = cuts[k]!;
-      const cls = cut !== cut ? targets[t]!.classify(a) : a >= cut ? above[k]! : classes[k]!;
-      counts[t * CAST_CLASS_COUNT + cls]! += 1;
-    }
-  }
-
-  /** The exact per-element path for chunks with zeros, subnormal inputs, infinities or NaNs. */
-  private exact32(values: Float32Array, bits: Int32Array): void {
-    const hist = this.hist;
-    const slow = this.plan.slow;
-    const n = values.length;
-    let zeros = 0;
-    let sum = 0;
-    let maxU = 0;
-    let minU = 0x7fffffff;
-    for (let i = 0; i < n; i++) {
+  private specials32(values: Float32Array, bits: Int32Array, counts: Int32Array): number {
+    let max = -1;
+    for (let i = 0; i < values.length; i++) {
       const u = bits[i]! & 0x7fffffff;
-      if (u === 0) {
-        zeros++;
-        continue;
+      if (u < INFINITY_BITS) {
+        if (u > max) max = u;
+        if (u === 0 || u >= MIN_NORMAL_BITS) continue;
       }
-      const b = u >> 16;
-      if (slow[b] !== 0) {
-        this.slowValue(values[i]!, b);
-        continue;
-      }
-      hist[b] = hist[b]! + 1;
-      if (u > maxU) maxU = u;
-      if (u < minU) minU = u;
-      const x = values[i]!;
-      sum += x * x;
+      // out of its bucket's counters: any counter of the bucket above zero will do, only their sum is read
+      let j = (u >>> 16) * WAYS;
+      while (counts[j]! <= 0) j++;
+      counts[j] = counts[j]! - 1;
+      this.countSpecial(values[i]!);
     }
-    this.zeros += zeros;
-    this.sumOfSquares += sum;
-    if (maxU !== 0) {
-      const extremes = new Float32Array(Int32Array.of(maxU, minU).buffer);
-      if (extremes[0]! > this.maxAbs) this.maxAbs = extremes[0]!;
-      if (extremes[1]! < this.minNonzero) this.minNonzero = extremes[1]!;
+    return max;
+  }
+
+  /** Add the counters to the histogram and reset them; zeros are all that is left in bucket 0. */
+  private merge(): void {
+    const counts = this.counts;
+    if (!counts) return;
+    const { hist, plan } = this;
+    const base = plan.base;
+    for (let k = 0; k < WAYS; k++) {
+      this.zeros += counts[k]!;
+      counts[k] = 0;
     }
+    const low = Math.max(1, (this.unmergedMin + 1) >>> 16);
+    const high = Math.min(this.unmergedMax, INFINITY_BITS - 1) >>> 16;
+    for (let b = low; b <= high; b++) {
+      const j = b * WAYS;
+      const c = counts[j]! + counts[j + 1]! + counts[j + 2]! + counts[j + 3]! - WAYS * base[j]!;
+      if (c === 0) continue;
+      hist[b] = hist[b]! + c;
+      counts.fill(base[j]!, j, j + WAYS);
+    }
+    this.unmerged = 0;
+    this.unmergedMax = 0;
+    this.unmergedMin = 0x7fffffff;
+    if (plan.spareCounts.length < 2) plan.spareCounts.push(counts);
+    this.counts = null;
   }
 
   private add64(values: Float64Array): void {
@@ -406,31 +367,57 @@ export class TensorAccumulator {
     if (min < this.minNonzero) this.minNonzero = min;
   }
 
-  /** The exact path: boundary buckets, subnormal inputs, infinities and NaNs. */
+  /** The exact path of binary64 values: boundary buckets, subnormal inputs, infinities and NaNs. */
   private slowValue(x: number, bucket: number): void {
-    const targets = this.plan.targets;
-    const counts = this.classCounts;
-    if (Number.isNaN(x)) {
-      this.nans++;
-      for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
-      return;
-    }
-    const a = Math.abs(x);
-    if (this.plan.slow[bucket] === SLOW_IMPURE) this.classifyImpure(a, bucket);
-    else for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
-    if (!Number.isFinite(x)) {
-      this.infinities++;
+    if (this.plan.slow[bucket] === SLOW_IMPURE) {
+      this.classifyImpure(Math.abs(x), bucket);
+      this.hist[bucket]! += 1;
+    } else if (!this.countSpecial(x)) {
       return;
     }
     this.sumOfSquares += x * x;
+    const a = Math.abs(x);
     if (a > this.maxAbs) this.maxAbs = a;
     if (a < this.minNonzero) this.minNonzero = a;
-    if (this.plan.slow[bucket] === SLOW_IMPURE) this.hist[bucket]! += 1;
-    else this.binadeExtra[binadeOf(a) + BINADE_OFFSET]! += 1;
+  }
+
+  /** Count one magnitude of an impure bucket into the class counts, by the bucket's cut points. */
+  private classifyImpure(a: number, b: number): void {
+    const { targets, cuts, above, classes } = this.plan;
+    const T = targets.length;
+    const counts = this.classCounts;
+    for (let t = 0; t < T; t++) {
+      const k = b * T + t;
+      const cut = cuts[k]!;
+      const cls = cut !== cut ? targets[t]!.classify(a) : a >= cut ? above[k]! : classes[k]!;
+      counts[t * CAST_CLASS_COUNT + cls]! += 1;
+    }
+  }
+
+  /**
+   * Class counts of a NaN, an infinity or a subnormal input, by the targets' own rounding; counts it as a NaN, an
+   * infinity or in its binade. Returns whether it is finite.
+   */
+  private countSpecial(x: number): boolean {
+    const targets = this.plan.targets;
+    const counts = this.classCounts;
+    if (x !== x) {
+      this.nans++;
+      for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
+      return false;
+    }
+    for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
+    if (x === Infinity || x === -Infinity) {
+      this.infinities++;
+      return false;
+    }
+    this.binadeExtra[binadeOf(Math.abs(x)) + BINADE_OFFSET]! += 1;
+    return true;
   }
 
   /** The statistics so far. */
   tally(): TensorTally {
+    this.merge();
     const { plan, hist } = this;
     const targets = plan.targets;
     const T = targets.length;

@@ -25,6 +25,13 @@ export interface ChannelAxis {
   maxOverRmsChannel: number | null;
 }
 
+/** The running sums of a {@link ChannelAccumulator}. */
+export interface ChannelSums {
+  readonly fastSum: Float64Array;
+  readonly slowSum: Float64Array;
+  readonly slowMaxSquare: Float64Array;
+}
+
 /** Accumulates per-row and per-column (or per-element) statistics of a rank-1 or rank-2 tensor, in storage order. */
 export class ChannelAccumulator {
   private readonly fastSum: Float64Array;
@@ -55,6 +62,7 @@ export class ChannelAccumulator {
     this.slowSum = new Float64Array(slowCount);
     this.slowMax = new Float64Array(slowCount);
     this.vector = vector;
+    this.sums = { fastSum: this.fastSum, slowSum: this.slowSum, slowMaxSquare: this.slowMax };
   }
 
   private readonly vector: boolean;
@@ -77,6 +85,13 @@ export class ChannelAccumulator {
       }
     }
   }
+
+  /**
+   * The running sums, for a pass that feeds them itself (TensorAccumulator, in its counting pass): the squares per
+   * fast-axis channel (fastSum.length is the run length along the fast storage axis), and per slow-axis channel the
+   * sum and largest square, non-finite values left out.
+   */
+  readonly sums: ChannelSums;
 
   /** The outlier figures: one axis for a vector, rows then columns for a matrix. */
   result(): ChannelAxis[] {

@@ -139,8 +139,7 @@ export async function scanFile(path: string, options: ScanOptions): Promise<File
       current = { accumulator: new TensorAccumulator(bucketPlan(tensor.dtype === "F64" ? 64 : 32, targets)), channels };
     },
     chunk(_tensor, values, first) {
-      current!.accumulator.add(values);
-      current!.channels?.add(values, first);
+      current!.accumulator.add(values, current!.channels, first);
     },
     end(tensor) {
       result.tensors.push(measureOf(path, tensor, current!.accumulator.tally(), targets, tolerance, current!.channels?.result()));

@@ -1,0 +1,244 @@
+/**
+ * The hot loops over binary32 values: one pass per run of elements that counts each element into its bucket (the top
+ * 16 bits of |x|: exponent and 7 fraction bits), sums the squares of the finite elements and keeps the extremes of
+ * |bits|, with no function call and no table lookup besides the bucket counter. Everything else (cast classes,
+ * binades, channel figures) is derived from these counts and sums by the callers.
+ *
+ * Two tricks keep the loop short. Each bucket has WAYS counters, and the four elements of a step use one each, so
+ * neighbours in one bucket do not wait on one memory cell. And the counters of buckets a class boundary cuts start at FLAG, a large
+ * negative number: an increment that leaves a counter negative marks a rare element for the exact path, found by the
+ * sign of the value just written instead of a second table.
+ */
+
+/** counters per bucket, interleaved: bucket b, way k sits at b × WAYS + k (the loops are written for 4) */
+export const WAYS = 4;
+/** starting value of the counters of buckets a class boundary cuts; stays negative for fewer than 2^30 increments */
+export const FLAG = -(2 ** 30);
+/** increments a counter may take between two merges (counters are int32; flagged ones start at FLAG) */
+export const MERGE_EVERY = 2 ** 29;
+/** |bits| of +infinity: at and above it lie infinities and NaNs (IEEE 754-2019 binary32 encoding) */
+export const INFINITY_BITS = 0x7f800000;
+/** |bits| of the smallest normal binary32 value, 2^-126 (IEEE 754-2019) */
+export const MIN_NORMAL_BITS = 0x00800000;
+
+/**
+ * Results of the last pass besides its sum of squares: [largest |bits|, smallest (|bits| − 1) mod 2^31, which is
+ * the smallest nonzero |bits| less one (a zero wraps to 0x7fffffff), number of entries written to `flagged`].
+ */
+export const runResult = new Int32Array(3);
+
+/**
+ * Count the chunk into `counts` and return the sum of the squares of its finite values; `bits` views the same memory
+ * as `values`. Flagged elements are reported by the start of their group of four in `flagged`.
+ */
+export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Array, flagged: Int32Array): number {
+  const n = values.length;
+  const groups = n & ~3;
+  let sum = 0;
+  let max = 0;
+  let min = 0x7fffffff;
+  let nFlagged = 0;
+  // four elements a step, each with its own counter of the bucket (way k), so neighbours never wait on one another
+  for (let i = 0; i < groups; i += 4) {
+    const w0 = bits[i]!;
+    const w1 = bits[i + 1]!;
+    const w2 = bits[i + 2]!;
+    const w3 = bits[i + 3]!;
+    // bucket × 4 + way, straight from the raw bits: the shift drops 14 bits, the mask drops the sign and way bits
+    const j0 = (w0 >> 14) & 0x1fffc;
+    const j1 = ((w1 >> 14) & 0x1fffc) | 1;
+    const j2 = ((w2 >> 14) & 0x1fffc) | 2;
+    const j3 = ((w3 >> 14) & 0x1fffc) | 3;
+    const c0 = counts[j0]! + 1;
+    counts[j0] = c0;
+    const c1 = counts[j1]! + 1;
+    counts[j1] = c1;
+    const c2 = counts[j2]! + 1;
+    counts[j2] = c2;
+    const c3 = counts[j3]! + 1;
+    counts[j3] = c3;
+    if ((c0 | c1 | c2 | c3) < 0) flagged[nFlagged++] = i;
+    const u0 = w0 & 0x7fffffff;
+    const u1 = w1 & 0x7fffffff;
+    const u2 = w2 & 0x7fffffff;
+    const u3 = w3 & 0x7fffffff;
+    // one comparison per element against the running extreme: rarely true, so the branch is predicted
+    if (u0 > max) max = u0;
+    if (u1 > max) max = u1;
+    if (u2 > max) max = u2;
+    if (u3 > max) max = u3;
+    // smallest nonzero: a zero wraps to 0x7fffffff
+    const m0 = (u0 - 1) & 0x7fffffff;
+    const m1 = (u1 - 1) & 0x7fffffff;
+    const m2 = (u2 - 1) & 0x7fffffff;
+    const m3 = (u3 - 1) & 0x7fffffff;
+    if (m0 < min) min = m0;
+    if (m1 < min) min = m1;
+    if (m2 < min) min = m2;
+    if (m3 < min) min = m3;
+    const x0 = values[i]!;
+    const x1 = values[i + 1]!;
+    const x2 = values[i + 2]!;
+    const x3 = values[i + 3]!;
+    // infinities and NaNs are left out of sums
+    sum += (u0 < INFINITY_BITS ? x0 * x0 : 0) + (u1 < INFINITY_BITS ? x1 * x1 : 0) + ((u2 < INFINITY_BITS ? x2 * x2 : 0) + (u3 < INFINITY_BITS ? x3 * x3 : 0));
+  }
+  for (let i = groups; i < n; i++) {
+    const w = bits[i]!;
+    const j = (w >> 14) & 0x1fffc;
+    const c = counts[j]! + 1;
+    counts[j] = c;
+    if (c < 0) flagged[nFlagged++] = i;
+    const u = w & 0x7fffffff;
+    if (u > max) max = u;
+    const m = (u - 1) & 0x7fffffff;
+    if (m < min) min = m;
+    const x = values[i]!;
+    sum += u < INFINITY_BITS ? x * x : 0;
+  }
+  runResult[0] = max;
+  runResult[1] = min;
+  runResult[2] = nFlagged;
+  return sum;
+}
+
+/**
+ * {@link countRun} that also feeds the per-channel sums: the chunk starts at storage index `first` of a tensor whose
+ * runs along the fast storage axis are fastSum.length long (rows of a C-order matrix). Each square goes to its
+ * fast-axis channel; each run's sum and largest finite square go to its slow-axis channel.
+ */
+export function countChunkChannels(
+  values: Float32Array,
+  bits: Int32Array,
+  counts: Int32Array,
+  flagged: Int32Array,
+  first: number,
+  fastSum: Float64Array,
+  slowSum: Float64Array,
+  slowMaxSquare: Float64Array,
+): number {
+  const n = values.length;
+  const runLength = fastSum.length;
+  let slow = Math.floor(first / runLength);
+  let fast = first - slow * runLength;
+  let total = 0;
+  let max = 0;
+  let min = 0x7fffffff;
+  let nFlagged = 0;
+  for (let start = 0; start < n; ) {
+    const end = Math.min(n, start + runLength - fast);
+    const groups = start + ((end - start) & ~3);
+    // channel of position i: offset + i
+    const offset = fast - start;
+    let sum = 0;
+    let runMax = 0;
+    for (let i = start; i < groups; i += 4) {
+      const w0 = bits[i]!;
+      const w1 = bits[i + 1]!;
+      const w2 = bits[i + 2]!;
+      const w3 = bits[i + 3]!;
+      const j0 = (w0 >> 14) & 0x1fffc;
+      const j1 = ((w1 >> 14) & 0x1fffc) | 1;
+      const j2 = ((w2 >> 14) & 0x1fffc) | 2;
+      const j3 = ((w3 >> 14) & 0x1fffc) | 3;
+      const c0 = counts[j0]! + 1;
+      counts[j0] = c0;
+      const c1 = counts[j1]! + 1;
+      counts[j1] = c1;
+      const c2 = counts[j2]! + 1;
+      counts[j2] = c2;
+      const c3 = counts[j3]! + 1;
+      counts[j3] = c3;
+      if ((c0 | c1 | c2 | c3) < 0) flagged[nFlagged++] = i;
+      const u0 = w0 & 0x7fffffff;
+      const u1 = w1 & 0x7fffffff;
+      const u2 = w2 & 0x7fffffff;
+      const u3 = w3 & 0x7fffffff;
+      if (u0 > runMax) runMax = u0;
+      if (u1 > runMax) runMax = u1;
+      if (u2 > runMax) runMax = u2;
+      if (u3 > runMax) runMax = u3;
+      const m0 = (u0 - 1) & 0x7fffffff;
+      const m1 = (u1 - 1) & 0x7fffffff;
+      const m2 = (u2 - 1) & 0x7fffffff;
+      const m3 = (u3 - 1) & 0x7fffffff;
+      if (m0 < min) min = m0;
+      if (m1 < min) min = m1;
+      if (m2 < min) min = m2;
+      if (m3 < min) min = m3;
+      const x0 = values[i]!;
+      const x1 = values[i + 1]!;
+      const x2 = values[i + 2]!;
+      const x3 = values[i + 3]!;
+      const s0 = u0 < INFINITY_BITS ? x0 * x0 : 0;
+      const s1 = u1 < INFINITY_BITS ? x1 * x1 : 0;
+      const s2 = u2 < INFINITY_BITS ? x2 * x2 : 0;
+      const s3 = u3 < INFINITY_BITS ? x3 * x3 : 0;
+      const k = offset + i;
+      fastSum[k] = fastSum[k]! + s0;
+      fastSum[k + 1] = fastSum[k + 1]! + s1;
+      fastSum[k + 2] = fastSum[k + 2]! + s2;
+      fastSum[k + 3] = fastSum[k + 3]! + s3;
+      sum += s0 + s1 + (s2 + s3);
+    }
+    for (let i = groups; i < end; i++) {
+      const w = bits[i]!;
+      const j = (w >> 14) & 0x1fffc;
+      const c = counts[j]! + 1;
+      counts[j] = c;
+      if (c < 0) flagged[nFlagged++] = i;
+      const u = w & 0x7fffffff;
+      if (u > runMax) runMax = u;
+      const m = (u - 1) & 0x7fffffff;
+      if (m < min) min = m;
+      const x = values[i]!;
+      const s = u < INFINITY_BITS ? x * x : 0;
+      fastSum[offset + i] = fastSum[offset + i]! + s;
+      sum += s;
+    }
+    if (runMax > max) max = runMax;
+    const finite = runMax < INFINITY_BITS ? runMax : finiteMaxBits(bits, start, end);
+    const a = finite > 0 ? valueOfBits(finite) : 0;
+    slowSum[slow] = slowSum[slow]! + sum;
+    if (a * a > slowMaxSquare[slow]!) slowMaxSquare[slow] = a * a;
+    total += sum;
+    start = end;
+    fast = 0;
+    slow++;
+  }
+  runResult[0] = max;
+  runResult[1] = min;
+  runResult[2] = nFlagged;
+  return total;
+}
+
+/** Largest |bits| of a finite value in bits[start, end), −1 when there is none. */
+export function finiteMaxBits(bits: Int32Array, start: number, end: number): number {
+  let max = -1;
+  for (let i = start; i < end; i++) {
+    const u = bits[i]! & 0x7fffffff;
+    if (u < INFINITY_BITS && u > max) max = u;
+  }
+  return max;
+}
+
+const scratchBits = new Int32Array(1);
+const scratchValue = new Float32Array(scratchBits.buffer);
+
+/** The binary32 value whose bit pattern is `u`. */
+export function valueOfBits(u: number): number {
+  scratchBits[0] = u;
+  return scratchValue[0]!;
+}
+
+// Type feedback for the rare branch (a flagged element) before the first real chunk: without it the optimised loops
+// bail out to the interpreter the first time a flagged element turns up, and again after each re-optimisation.
+{
+  const values = new Float32Array(WAYS);
+  const bits = new Int32Array(values.buffer);
+  for (let round = 0; round < 30; round++) {
+    countRun(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS));
+    const sums = [new Float64Array(WAYS), new Float64Array(1), new Float64Array(1)] as const;
+    countChunkChannels(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS), 0, ...sums);
+  }
+}
