@@ -44,18 +44,19 @@ export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Ar
     const w1 = bits[i + 1]!;
     const w2 = bits[i + 2]!;
     const w3 = bits[i + 3]!;
-    // bucket × 4 + way, straight from the raw bits: the shift drops 14 bits, the mask drops the sign and way bits
+    // bucket × 4 + way, straight from the raw bits: the shift drops 14 bits, the mask drops the sign and way bits;
+    // `| 0` spares the engine an overflow check per increment (counters stay far inside int32, see MERGE_EVERY)
     const j0 = (w0 >> 14) & 0x1fffc;
     const j1 = ((w1 >> 14) & 0x1fffc) | 1;
     const j2 = ((w2 >> 14) & 0x1fffc) | 2;
     const j3 = ((w3 >> 14) & 0x1fffc) | 3;
-    const c0 = counts[j0]! + 1;
+    const c0 = (counts[j0]! + 1) | 0;
     counts[j0] = c0;
-    const c1 = counts[j1]! + 1;
+    const c1 = (counts[j1]! + 1) | 0;
     counts[j1] = c1;
-    const c2 = counts[j2]! + 1;
+    const c2 = (counts[j2]! + 1) | 0;
     counts[j2] = c2;
-    const c3 = counts[j3]! + 1;
+    const c3 = (counts[j3]! + 1) | 0;
     counts[j3] = c3;
     if ((c0 | c1 | c2 | c3) < 0) flagged[nFlagged++] = i;
     const u0 = w0 & 0x7fffffff;
@@ -86,7 +87,7 @@ export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Ar
   for (let i = groups; i < n; i++) {
     const w = bits[i]!;
     const j = (w >> 14) & 0x1fffc;
-    const c = counts[j]! + 1;
+    const c = (counts[j]! + 1) | 0;
     counts[j] = c;
     if (c < 0) flagged[nFlagged++] = i;
     const u = w & 0x7fffffff;
@@ -141,13 +142,13 @@ export function countChunkChannels(
       const j1 = ((w1 >> 14) & 0x1fffc) | 1;
       const j2 = ((w2 >> 14) & 0x1fffc) | 2;
       const j3 = ((w3 >> 14) & 0x1fffc) | 3;
-      const c0 = counts[j0]! + 1;
+      const c0 = (counts[j0]! + 1) | 0;
       counts[j0] = c0;
-      const c1 = counts[j1]! + 1;
+      const c1 = (counts[j1]! + 1) | 0;
       counts[j1] = c1;
-      const c2 = counts[j2]! + 1;
+      const c2 = (counts[j2]! + 1) | 0;
       counts[j2] = c2;
-      const c3 = counts[j3]! + 1;
+      const c3 = (counts[j3]! + 1) | 0;
       counts[j3] = c3;
       if ((c0 | c1 | c2 | c3) < 0) flagged[nFlagged++] = i;
       const u0 = w0 & 0x7fffffff;
@@ -174,7 +175,7 @@ export function countChunkChannels(
       const s1 = u1 < INFINITY_BITS ? x1 * x1 : 0;
       const s2 = u2 < INFINITY_BITS ? x2 * x2 : 0;
       const s3 = u3 < INFINITY_BITS ? x3 * x3 : 0;
-      const k = offset + i;
+      const k = (offset + i) | 0;
       fastSum[k] = fastSum[k]! + s0;
       fastSum[k + 1] = fastSum[k + 1]! + s1;
       fastSum[k + 2] = fastSum[k + 2]! + s2;
@@ -184,7 +185,7 @@ export function countChunkChannels(
     for (let i = groups; i < end; i++) {
       const w = bits[i]!;
       const j = (w >> 14) & 0x1fffc;
-      const c = counts[j]! + 1;
+      const c = (counts[j]! + 1) | 0;
       counts[j] = c;
       if (c < 0) flagged[nFlagged++] = i;
       const u = w & 0x7fffffff;
