@@ -4,9 +4,10 @@
  * Why buckets: the class of a value under a cast (flushed, subnormal, normal, saturated, overflowed) depends only on
  * its magnitude, and the class boundaries are few. Magnitudes are binned by their top bits (sign dropped: the exponent
  * and the leading fraction bits, 32768 buckets); a bucket whose smallest and largest magnitudes fall in the same class
- * for every target is counted by one increment per element, and its class counts are added once at the end. The few
- * buckets a class boundary cuts through, plus zeros, infinities, NaNs and subnormal inputs, take an exact per-element
- * path through the format module's rounding. The counts are therefore exact, at the price of a histogram increment.
+ * for every target is counted by one increment per element, and its class counts are added once at the end. The
+ * elements of the few buckets a class boundary cuts through, and infinities, NaNs and subnormal inputs, take an exact
+ * per-element path through the format module's rounding; zeros are the count of bucket 0. The counts are therefore
+ * exact, at the price of a histogram increment. The binary32 loops themselves are in fast32.ts.
  */
 import { binadeOf } from "../formats/index.js";
 import type { ChannelAccumulator } from "./channels.js";

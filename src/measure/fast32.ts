@@ -1,13 +1,13 @@
 /**
- * The hot loops over binary32 values: one pass per run of elements that counts each element into its bucket (the top
- * 16 bits of |x|: exponent and 7 fraction bits), sums the squares of the finite elements and keeps the extremes of
- * |bits|, with no function call and no table lookup besides the bucket counter. Everything else (cast classes,
+ * The hot loops over binary32 values: one pass over a chunk counts each element into its bucket (the top 16 bits of
+ * |x|: exponent and 7 fraction bits), sums the squares of the finite elements (per channel too) and keeps the
+ * extremes of |bits|, with no function call and no table besides the bucket counters. Everything else (cast classes,
  * binades, channel figures) is derived from these counts and sums by the callers.
  *
  * Two tricks keep the loop short. Each bucket has WAYS counters, and the four elements of a step use one each, so
- * neighbours in one bucket do not wait on one memory cell. And the counters of buckets a class boundary cuts start at FLAG, a large
- * negative number: an increment that leaves a counter negative marks a rare element for the exact path, found by the
- * sign of the value just written instead of a second table.
+ * neighbours in one bucket do not wait on one memory cell. And the counters of buckets a class boundary cuts start
+ * at FLAG, a large negative number: an increment that leaves a counter negative marks a rare element for the exact
+ * path, found by the sign of the value just written instead of a second table.
  */
 
 /** counters per bucket, interleaved: bucket b, way k sits at b × WAYS + k (the loops are written for 4) */
@@ -232,14 +232,14 @@ export function valueOfBits(u: number): number {
   return scratchValue[0]!;
 }
 
-// Type feedback for the rare branch (a flagged element) before the first real chunk: without it the optimised loops
-// bail out to the interpreter the first time a flagged element turns up, and again after each re-optimisation.
+// Type feedback for the rare branch (a flagged element, in a step of four and in the tail) before the first real
+// chunk: without it the optimised loops bail out to the interpreter the first time a flagged element turns up.
 {
-  const values = new Float32Array(WAYS);
+  const values = new Float32Array(WAYS + 1);
   const bits = new Int32Array(values.buffer);
   for (let round = 0; round < 30; round++) {
-    countRun(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS));
-    const sums = [new Float64Array(WAYS), new Float64Array(1), new Float64Array(1)] as const;
-    countChunkChannels(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS), 0, ...sums);
+    countRun(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS + 1));
+    const sums = [new Float64Array(WAYS + 1), new Float64Array(1), new Float64Array(1)] as const;
+    countChunkChannels(values, bits, new Int32Array(WAYS).fill(FLAG), new Int32Array(WAYS + 1), 0, ...sums);
   }
 }
