@@ -255,8 +255,10 @@ export class TensorAccumulator {
     if (flagged.length < n) flagged = new Int32Array(Math.max(n, 2 * flagged.length));
     const bits = new Int32Array(values.buffer, values.byteOffset, n);
     let sum: number;
-    if (channels && channels.sums.fastSum.length >= MIN_FUSED_RUN) {
+    const fused = channels !== undefined && channels.sums.fastSum.length >= MIN_FUSED_RUN;
+    if (fused) {
       const { fastSum, slowSum, slowMaxSquare } = channels.sums;
+      channels.save(first, n);
       sum = countChunkChannels(values, bits, counts, flagged, first, fastSum, slowSum, slowMaxSquare);
     } else {
       sum = countRun(values, bits, counts, flagged);
@@ -277,10 +279,17 @@ export class TensorAccumulator {
       }
       next = stop;
     }
+    // infinities or NaNs spoilt the pass's sums: the channel sums are put back and fed again without them, and the
+    // sum of squares comes from the exact path below
+    const nonFinite = chunkMax >= INFINITY_BITS;
+    if (nonFinite && fused) {
+      channels.restore();
+      channels.add(values, first);
+    }
     // chunkMin is the smallest nonzero |bits| less one: below MIN_NORMAL_BITS − 1 means a subnormal input
-    const special = chunkMax >= INFINITY_BITS || chunkMin < MIN_NORMAL_BITS - 1;
+    const special = nonFinite || chunkMin < MIN_NORMAL_BITS - 1;
     const finiteMax = special ? this.specials32(values, bits, counts) : chunkMax;
-    this.sumOfSquares += sum;
+    this.sumOfSquares += nonFinite ? this.finiteSum : sum;
     if (finiteMax >= 0 && valueOfBits(finiteMax) > this.maxAbs) this.maxAbs = valueOfBits(finiteMax);
     if (chunkMin + 1 < INFINITY_BITS && valueOfBits(chunkMin + 1) < this.minNonzero) this.minNonzero = valueOfBits(chunkMin + 1);
     this.unmerged += n;
@@ -288,16 +297,21 @@ export class TensorAccumulator {
     if (chunkMin < this.unmergedMin) this.unmergedMin = chunkMin;
   }
 
+  /** sum of the squares of the finite values of the chunk given to the last {@link specials32} */
+  private finiteSum = 0;
+
   /**
    * The exact path for the subnormal inputs, infinities and NaNs of a chunk: each is taken out of the bucket counters
    * and counted apart. Returns the largest finite |bits| of the chunk (−1 when none).
    */
   private specials32(values: Float32Array, bits: Int32Array, counts: Int32Array): number {
     let max = -1;
+    let sum = 0;
     for (let i = 0; i < values.length; i++) {
       const u = bits[i]! & 0x7fffffff;
       if (u < INFINITY_BITS) {
         if (u > max) max = u;
+        sum += values[i]! * values[i]!;
         if (u === 0 || u >= MIN_NORMAL_BITS) continue;
       }
       // out of its bucket's counters: any counter of the bucket above zero will do, only their sum is read
@@ -306,6 +320,7 @@ export class TensorAccumulator {
       counts[j] = counts[j]! - 1;
       this.countSpecial(values[i]!);
     }
+    this.finiteSum = sum;
     return max;
   }
 

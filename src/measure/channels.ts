@@ -93,6 +93,40 @@ export class ChannelAccumulator {
    */
   readonly sums: ChannelSums;
 
+  /** the sums a chunk can change, as they were before it (see {@link save}) */
+  private saved = new Float64Array(0);
+  private savedAt = { fast: 0, fastSpan: 0, slow: 0, slowSpan: 0 };
+
+  /**
+   * Keep a copy of the sums that `length` values from storage index `first` can change, so that a pass that fed
+   * them through {@link sums} can be undone with {@link restore} (binary32 chunks with infinities or NaNs).
+   */
+  save(first: number, length: number): void {
+    const count = this.fastCount;
+    const slow = Math.floor(first / count);
+    const fast = first - slow * count;
+    const fastSpan = Math.min(count, length);
+    const slowSpan = Math.min(this.slowSum.length - slow, Math.ceil((fast + length) / count));
+    if (this.saved.length < fastSpan + 2 * slowSpan) this.saved = new Float64Array(fastSpan + 2 * slowSpan);
+    this.savedAt = { fast, fastSpan, slow, slowSpan };
+    // the fast-axis channels from `fast` on, wrapping around to 0 when the values reach into the next run
+    const head = Math.min(count - fast, fastSpan);
+    this.saved.set(this.fastSum.subarray(fast, fast + head), 0);
+    this.saved.set(this.fastSum.subarray(0, fastSpan - head), head);
+    this.saved.set(this.slowSum.subarray(slow, slow + slowSpan), fastSpan);
+    this.saved.set(this.slowMax.subarray(slow, slow + slowSpan), fastSpan + slowSpan);
+  }
+
+  /** Put back the sums kept by the last {@link save}. */
+  restore(): void {
+    const { fast, fastSpan, slow, slowSpan } = this.savedAt;
+    const head = Math.min(this.fastCount - fast, fastSpan);
+    this.fastSum.set(this.saved.subarray(0, head), fast);
+    this.fastSum.set(this.saved.subarray(head, fastSpan), 0);
+    this.slowSum.set(this.saved.subarray(fastSpan, fastSpan + slowSpan), slow);
+    this.slowMax.set(this.saved.subarray(fastSpan + slowSpan, fastSpan + 2 * slowSpan), slow);
+  }
+
   /** The outlier figures: one axis for a vector, rows then columns for a matrix. */
   result(): ChannelAxis[] {
     if (this.vector) return [axisFigures("element", this.fastSum, null, 1)];

@@ -1,8 +1,9 @@
 /**
  * The hot loops over binary32 values: one pass over a chunk counts each element into its bucket (the top 16 bits of
- * |x|: exponent and 7 fraction bits), sums the squares of the finite elements (per channel too) and keeps the
- * extremes of |bits|, with no function call and no table besides the bucket counters. Everything else (cast classes,
- * binades, channel figures) is derived from these counts and sums by the callers.
+ * |x|: exponent and 7 fraction bits), sums the squares (per channel too) and keeps the extremes of |bits|, with no
+ * function call and no table besides the bucket counters. Everything else (cast classes, binades, channel figures)
+ * is derived from these counts and sums by the callers. Infinities and NaNs are squared like any value, which spoils
+ * the sums of their chunk; they are rare, and the caller, seeing them in the largest |bits|, sums that chunk again.
  *
  * Two tricks keep the loop short. Each bucket has WAYS counters, and the four elements of a step use one each, so
  * neighbours in one bucket do not wait on one memory cell. And the counters of buckets a class boundary cuts start
@@ -28,8 +29,8 @@ export const MIN_NORMAL_BITS = 0x00800000;
 export const runResult = new Int32Array(3);
 
 /**
- * Count the chunk into `counts` and return the sum of the squares of its finite values; `bits` views the same memory
- * as `values`. Flagged elements are reported by the start of their group of four in `flagged`.
+ * Count the chunk into `counts` and return the sum of its squares; `bits` views the same memory as `values`.
+ * Flagged elements are reported by the start of their group of four in `flagged`.
  */
 export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Array, flagged: Int32Array): number {
   const n = values.length;
@@ -81,8 +82,7 @@ export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Ar
     const x1 = values[i + 1]!;
     const x2 = values[i + 2]!;
     const x3 = values[i + 3]!;
-    // infinities and NaNs are left out of sums
-    sum += (u0 < INFINITY_BITS ? x0 * x0 : 0) + (u1 < INFINITY_BITS ? x1 * x1 : 0) + ((u2 < INFINITY_BITS ? x2 * x2 : 0) + (u3 < INFINITY_BITS ? x3 * x3 : 0));
+    sum += x0 * x0 + x1 * x1 + (x2 * x2 + x3 * x3);
   }
   for (let i = groups; i < n; i++) {
     const w = bits[i]!;
@@ -95,7 +95,7 @@ export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Ar
     const m = (u - 1) & 0x7fffffff;
     if (m < min) min = m;
     const x = values[i]!;
-    sum += u < INFINITY_BITS ? x * x : 0;
+    sum += x * x;
   }
   runResult[0] = max;
   runResult[1] = min;
@@ -106,7 +106,7 @@ export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Ar
 /**
  * {@link countRun} that also feeds the per-channel sums: the chunk starts at storage index `first` of a tensor whose
  * runs along the fast storage axis are fastSum.length long (rows of a C-order matrix). Each square goes to its
- * fast-axis channel; each run's sum and largest finite square go to its slow-axis channel.
+ * fast-axis channel; each run's sum and largest square go to its slow-axis channel.
  */
 export function countChunkChannels(
   values: Float32Array,
@@ -171,10 +171,10 @@ export function countChunkChannels(
       const x1 = values[i + 1]!;
       const x2 = values[i + 2]!;
       const x3 = values[i + 3]!;
-      const s0 = u0 < INFINITY_BITS ? x0 * x0 : 0;
-      const s1 = u1 < INFINITY_BITS ? x1 * x1 : 0;
-      const s2 = u2 < INFINITY_BITS ? x2 * x2 : 0;
-      const s3 = u3 < INFINITY_BITS ? x3 * x3 : 0;
+      const s0 = x0 * x0;
+      const s1 = x1 * x1;
+      const s2 = x2 * x2;
+      const s3 = x3 * x3;
       const k = (offset + i) | 0;
       fastSum[k] = fastSum[k]! + s0;
       fastSum[k + 1] = fastSum[k + 1]! + s1;
@@ -193,13 +193,12 @@ export function countChunkChannels(
       const m = (u - 1) & 0x7fffffff;
       if (m < min) min = m;
       const x = values[i]!;
-      const s = u < INFINITY_BITS ? x * x : 0;
+      const s = x * x;
       fastSum[offset + i] = fastSum[offset + i]! + s;
       sum += s;
     }
     if (runMax > max) max = runMax;
-    const finite = runMax < INFINITY_BITS ? runMax : finiteMaxBits(bits, start, end);
-    const a = finite > 0 ? valueOfBits(finite) : 0;
+    const a = valueOfBits(runMax);
     slowSum[slow] = slowSum[slow]! + sum;
     if (a * a > slowMaxSquare[slow]!) slowMaxSquare[slow] = a * a;
     total += sum;
@@ -211,16 +210,6 @@ export function countChunkChannels(
   runResult[1] = min;
   runResult[2] = nFlagged;
   return total;
-}
-
-/** Largest |bits| of a finite value in bits[start, end), −1 when there is none. */
-export function finiteMaxBits(bits: Int32Array, start: number, end: number): number {
-  let max = -1;
-  for (let i = start; i < end; i++) {
-    const u = bits[i]! & 0x7fffffff;
-    if (u < INFINITY_BITS && u > max) max = u;
-  }
-  return max;
 }
 
 const scratchBits = new Int32Array(1);
