@@ -341,7 +341,11 @@ export class TensorAccumulator {
       const c = counts[j]! + counts[j + 1]! + counts[j + 2]! + counts[j + 3]! - WAYS * base[j]!;
       if (c === 0) continue;
       hist[b] = hist[b]! + c;
-      counts.fill(base[j]!, j, j + WAYS);
+      const rest = base[j]!;
+      counts[j] = rest;
+      counts[j + 1] = rest;
+      counts[j + 2] = rest;
+      counts[j + 3] = rest;
     }
     this.unmerged = 0;
     this.unmergedMax = 0;
