@@ -28,85 +28,27 @@ export const MIN_NORMAL_BITS = 0x00800000;
  */
 export const runResult = new Int32Array(3);
 
+/** channel sums nobody reads, for {@link countRun}: it is the same pass over runs of SCRATCH_RUN elements */
+const SCRATCH_RUN = 4096;
+const scratchFast = new Float64Array(SCRATCH_RUN);
+let scratchSlow = new Float64Array(0);
+
 /**
  * Count the chunk into `counts` and return the sum of its squares; `bits` views the same memory as `values`.
- * Flagged elements are reported by the start of their group of four in `flagged`.
+ * Flagged elements are reported by the start of their group of four in `flagged`. (One loop serves both this and
+ * {@link countChunkChannels}: the channel squares it adds here go to a small scratch row that stays in cache.)
  */
 export function countRun(values: Float32Array, bits: Int32Array, counts: Int32Array, flagged: Int32Array): number {
-  const n = values.length;
-  const groups = n & ~3;
-  let sum = 0;
-  let max = 0;
-  let min = 0x7fffffff;
-  let nFlagged = 0;
-  // four elements a step, each with its own counter of the bucket (way k), so neighbours never wait on one another
-  for (let i = 0; i < groups; i += 4) {
-    const w0 = bits[i]!;
-    const w1 = bits[i + 1]!;
-    const w2 = bits[i + 2]!;
-    const w3 = bits[i + 3]!;
-    // bucket × 4 + way, straight from the raw bits: the shift drops 14 bits, the mask drops the sign and way bits;
-    // `| 0` spares the engine an overflow check per increment (counters stay far inside int32, see MERGE_EVERY)
-    const j0 = (w0 >> 14) & 0x1fffc;
-    const j1 = ((w1 >> 14) & 0x1fffc) | 1;
-    const j2 = ((w2 >> 14) & 0x1fffc) | 2;
-    const j3 = ((w3 >> 14) & 0x1fffc) | 3;
-    const c0 = (counts[j0]! + 1) | 0;
-    counts[j0] = c0;
-    const c1 = (counts[j1]! + 1) | 0;
-    counts[j1] = c1;
-    const c2 = (counts[j2]! + 1) | 0;
-    counts[j2] = c2;
-    const c3 = (counts[j3]! + 1) | 0;
-    counts[j3] = c3;
-    if ((c0 | c1 | c2 | c3) < 0) flagged[nFlagged++] = i;
-    const u0 = w0 & 0x7fffffff;
-    const u1 = w1 & 0x7fffffff;
-    const u2 = w2 & 0x7fffffff;
-    const u3 = w3 & 0x7fffffff;
-    // one comparison per element against the running extreme: rarely true, so the branch is predicted
-    if (u0 > max) max = u0;
-    if (u1 > max) max = u1;
-    if (u2 > max) max = u2;
-    if (u3 > max) max = u3;
-    // smallest nonzero: a zero wraps to 0x7fffffff
-    const m0 = (u0 - 1) & 0x7fffffff;
-    const m1 = (u1 - 1) & 0x7fffffff;
-    const m2 = (u2 - 1) & 0x7fffffff;
-    const m3 = (u3 - 1) & 0x7fffffff;
-    if (m0 < min) min = m0;
-    if (m1 < min) min = m1;
-    if (m2 < min) min = m2;
-    if (m3 < min) min = m3;
-    const x0 = values[i]!;
-    const x1 = values[i + 1]!;
-    const x2 = values[i + 2]!;
-    const x3 = values[i + 3]!;
-    sum += x0 * x0 + x1 * x1 + (x2 * x2 + x3 * x3);
-  }
-  for (let i = groups; i < n; i++) {
-    const w = bits[i]!;
-    const j = (w >> 14) & 0x1fffc;
-    const c = (counts[j]! + 1) | 0;
-    counts[j] = c;
-    if (c < 0) flagged[nFlagged++] = i;
-    const u = w & 0x7fffffff;
-    if (u > max) max = u;
-    const m = (u - 1) & 0x7fffffff;
-    if (m < min) min = m;
-    const x = values[i]!;
-    sum += x * x;
-  }
-  runResult[0] = max;
-  runResult[1] = min;
-  runResult[2] = nFlagged;
-  return sum;
+  const runs = Math.ceil(values.length / SCRATCH_RUN);
+  if (scratchSlow.length < runs) scratchSlow = new Float64Array(runs);
+  return countChunkChannels(values, bits, counts, flagged, 0, scratchFast, scratchSlow, scratchSlow);
 }
 
 /**
- * {@link countRun} that also feeds the per-channel sums: the chunk starts at storage index `first` of a tensor whose
- * runs along the fast storage axis are fastSum.length long (rows of a C-order matrix). Each square goes to its
- * fast-axis channel; each run's sum and largest square go to its slow-axis channel.
+ * Count the chunk into `counts` and feed the per-channel sums; return the sum of its squares. The chunk starts at
+ * storage index `first` of a tensor whose runs along the fast storage axis are fastSum.length long (rows of a C-order
+ * matrix). Each square goes to its fast-axis channel; each run's sum and largest square go to its slow-axis channel.
+ * `bits` views the same memory as `values`; flagged elements are reported by the start of their group of four.
  */
 export function countChunkChannels(
   values: Float32Array,
@@ -133,11 +75,14 @@ export function countChunkChannels(
     const offset = fast - start;
     let sum = 0;
     let runMax = 0;
+    // four elements a step, each with its own counter of the bucket (way k), so neighbours never wait on one another
     for (let i = start; i < groups; i += 4) {
       const w0 = bits[i]!;
       const w1 = bits[i + 1]!;
       const w2 = bits[i + 2]!;
       const w3 = bits[i + 3]!;
+      // bucket × 4 + way, straight from the raw bits: the shift drops 14 bits, the mask drops the sign and way bits;
+      // `| 0` below spares the engine an overflow check per increment (counters stay far inside int32: MERGE_EVERY)
       const j0 = (w0 >> 14) & 0x1fffc;
       const j1 = ((w1 >> 14) & 0x1fffc) | 1;
       const j2 = ((w2 >> 14) & 0x1fffc) | 2;
@@ -155,10 +100,12 @@ export function countChunkChannels(
       const u1 = w1 & 0x7fffffff;
       const u2 = w2 & 0x7fffffff;
       const u3 = w3 & 0x7fffffff;
+      // one comparison per element against the running extreme: rarely true, so the branch is predicted
       if (u0 > runMax) runMax = u0;
       if (u1 > runMax) runMax = u1;
       if (u2 > runMax) runMax = u2;
       if (u3 > runMax) runMax = u3;
+      // smallest nonzero: a zero wraps to 0x7fffffff
       const m0 = (u0 - 1) & 0x7fffffff;
       const m1 = (u1 - 1) & 0x7fffffff;
       const m2 = (u2 - 1) & 0x7fffffff;
