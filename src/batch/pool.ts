@@ -43,7 +43,7 @@ export function defaultWorkers(): number {
   return Math.max(1, availableParallelism());
 }
 
-/** The size of the next chunk: a share of what is left, so the last chunks are small, within 1..most. */
+/** The size of the next chunk: a share of the tasks not yet sent, so the last chunks are small, within 1..most. */
 function chunkSize(left: number, workers: number, most: number): number {
   return Math.max(1, Math.min(most, Math.floor(left / (4 * workers))));
 }
@@ -102,7 +102,7 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
       const feed = (): void => {
         while (pending.length < inFlight) {
           const chunk: number[] = [];
-          const count = chunkSize(tasks.length - settled - pending.flat().length, workers, most);
+          const count = chunkSize(requeued.length + tasks.length - next, workers, most);
           let index: number | undefined;
           while (chunk.length < count && (index = takeTask()) !== undefined) chunk.push(index);
           if (chunk.length === 0) break;

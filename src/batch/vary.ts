@@ -8,7 +8,8 @@
  * map), so the spec loader's line:column positions still point into the user's file (after
  * `originalLine` maps back the lines an added key shifted).
  */
-import { isAlias, isMap, isScalar, isSeq, LineCounter, parse as parseYaml, parseDocument } from "yaml";
+import type { LineCounter } from "yaml";
+import { isAlias, isMap, isScalar, isSeq, yamlLib } from "../spec/yaml-lib.js";
 
 /** One --vary option, parsed. */
 export interface VaryAxis {
@@ -73,7 +74,7 @@ export function parseVaryOption(option: string): VaryAxis {
     if (text === "") throw new VaryError(`--vary ${key}: an empty value; list values separated by commas`);
     let value: unknown;
     try {
-      value = parseYaml(text);
+      value = yamlLib().parse(text);
     } catch {
       throw new VaryError(`--vary ${key}: ${JSON.stringify(text)} is not a YAML scalar`);
     }
@@ -211,8 +212,9 @@ export function varyText(text: string, variant: Variant, schema?: Schema): Varie
   // line maps from each edit, applied newest first to go back to the original
   const maps: ((line: number) => number)[] = [];
   for (const setting of variant.settings) {
-    const counter = new LineCounter();
-    const doc = parseDocument(current, { lineCounter: counter, merge: true, uniqueKeys: true });
+    const yaml = yamlLib();
+    const counter = new yaml.LineCounter();
+    const doc = yaml.parseDocument(current, { lineCounter: counter, merge: true, uniqueKeys: true });
     if (doc.errors.length > 0) break;
     const edit = editFor(doc.contents, current, counter, setting.key, setting.path, setting.value, schema);
     const editLine = counter.linePos(edit.start).line;

@@ -1,5 +1,6 @@
 /** Key paths to line:column in the YAML source, through the yaml library's node ranges. */
-import { isAlias, isMap, isScalar, isSeq, type Document, type LineCounter, type Node } from "yaml";
+import type { Document, LineCounter, Node } from "yaml";
+import { isAlias, isMap, isScalar, isSeq } from "./yaml-lib.js";
 import type { SpecPath } from "./types.js";
 
 /** Where a path points: the value's first character, or the key's when `atKey`. */

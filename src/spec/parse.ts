@@ -1,12 +1,13 @@
 /** YAML (or JSON) text in; a validated, normalized NetworkSpec out, or every problem of the file with its position. */
 import { readFile, stat } from "node:fs/promises";
-import { LineCounter, parseDocument, type Document } from "yaml";
+import type { Document, LineCounter } from "yaml";
 import { crossChecks } from "./checks.js";
 import { formatSpecPath, type SpecIssue, type SpecPosition } from "./issues.js";
 import { locateIn } from "./locate.js";
 import { errorMap, flattenIssues, type RawIssue } from "./messages.js";
 import { normalizeSpec } from "./normalize.js";
 import { readPlainYaml } from "./plain-yaml.js";
+import { yamlLib } from "./yaml-lib.js";
 import { specSchema } from "./schema.js";
 import type { NetworkSpec, SpecPath } from "./types.js";
 
@@ -62,8 +63,9 @@ interface Parsed {
 }
 
 function parseWithPositions(text: string): Parsed {
-  const counter = new LineCounter();
-  const doc = parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys: true, prettyErrors: true });
+  const yaml = yamlLib();
+  const counter = new yaml.LineCounter();
+  const doc = yaml.parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys: true, prettyErrors: true });
   return { doc: doc as Document, counter };
 }
 
