@@ -4,6 +4,7 @@ import { check } from "../src/check.js";
 import { comparePlans } from "../src/compare.js";
 import { buildGraph } from "../src/graph/index.js";
 import { predict } from "../src/magnitude/index.js";
+import { checkOptimizer } from "../src/scale/optimizer.js";
 import { parseSpec } from "../src/spec/index.js";
 import type { NetworkSpec } from "../src/spec/types.js";
 import { mlpSpec } from "./generated-specs.js";
@@ -42,6 +43,10 @@ describe("1,000-layer dense + ReLU spec", () => {
   bench("check", () => {
     if (check(spec).tensors.length === 0) throw new Error("no tensors");
   }, { iterations: 5, time: 0 });
+  const prediction = predict(graph, spec);
+  bench("checkOptimizer alone", () => {
+    if (checkOptimizer(spec.training.optimizer, spec.precision, prediction).tensors.length === 0) throw new Error("no weights");
+  });
 });
 
 describe("compare on one example", () => {

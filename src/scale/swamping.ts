@@ -87,9 +87,11 @@ class UpdateShares implements SharesByExponent {
     return share;
   }
 
-  // widen the table to hold exponent k (the first call sizes it for the usual span of one weight's binades)
+  // widen the table to hold exponent k; the first call sizes it for the binades of a weight and the subnormal
+  // spacing of binary32 below them
   private reach(k: number): number {
-    const from = Math.min(k - 64, this.values.length === 0 ? k : this.base);
+    const empty = this.values.length === 0;
+    const from = Math.min(k - (empty ? 160 : 64), empty ? k : this.base);
     const to = Math.max(k + 64, this.base + this.values.length);
     const values = new Float64Array(to - from).fill(NaN);
     values.set(this.values, this.base - from);
@@ -99,44 +101,64 @@ class UpdateShares implements SharesByExponent {
   }
 }
 
-// Whether two profiles are equal field by field: equal profiles have equal shares below every threshold.
-function sameProfile(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
-  let fields = 0;
-  for (const key in a) {
-    if (a[key as keyof MagnitudeProfile] !== b[key as keyof MagnitudeProfile]) return false;
-    fields++;
-  }
-  for (const _ in b) fields--;
-  return fields === 0;
+/**
+ * What fractionBelow reads of a profile (src/risk/profile.ts): the element law and its scale, and whether any
+ * element is nonzero (the element count and the share of zeros enter only through that; the shares are of the
+ * nonzero elements). `zeroFraction` is set apart: the swamping sum charges a weight's zeros itself.
+ */
+export function lawOf(profile: MagnitudeProfile, zeroFraction = 0): MagnitudeProfile {
+  const law: MagnitudeProfile = {
+    elements: nonzeroElements(profile) > 0 ? 1 : 0,
+    zeroFraction,
+    shape: profile.shape,
+    rms: profile.rms,
+    log2Spread: profile.log2Spread,
+  };
+  if (profile.bound !== undefined) law.bound = profile.bound;
+  if (profile.elementLog2Spread !== undefined) law.elementLog2Spread = profile.elementLog2Spread;
+  return law;
 }
 
-// Values derived from a profile, shared by every profile equal to it (found by rms, then field by field).
-class ByProfile<T> {
-  private readonly entries = new Map<number, { profile: MagnitudeProfile; value: T }[]>();
+// Values derived from the law of a profile (lawOf), shared by every profile with an equal law: found by rms,
+// then field by field.
+class ByLaw<T> {
+  private readonly entries = new Map<number, { law: MagnitudeProfile; value: T }[]>();
 
-  constructor(private readonly derive: (profile: MagnitudeProfile) => T) {}
+  constructor(private readonly derive: (law: MagnitudeProfile) => T) {}
 
-  get(profile: MagnitudeProfile): T {
-    let list = this.entries.get(profile.rms);
+  get(law: MagnitudeProfile): T {
+    let list = this.entries.get(law.rms);
     if (list === undefined) {
       list = [];
-      this.entries.set(profile.rms, list);
+      this.entries.set(law.rms, list);
     }
-    for (const entry of list) if (entry.profile === profile || sameProfile(entry.profile, profile)) return entry.value;
-    const value = this.derive(profile);
-    list.push({ profile, value });
+    for (const entry of list) {
+      const known = entry.law;
+      if (
+        known.shape === law.shape &&
+        known.log2Spread === law.log2Spread &&
+        known.elements === law.elements &&
+        known.zeroFraction === law.zeroFraction &&
+        known.bound === law.bound &&
+        known.elementLog2Spread === law.elementLog2Spread
+      ) {
+        return entry.value;
+      }
+    }
+    const value = this.derive(law);
+    list.push({ law, value });
     return value;
   }
 }
 
 /**
- * The swamping sums of one assessment against a fixed list of formats. Weights of equal profiles (the layers of
- * one width) share their binade masses, updates of equal profiles (Adam's, which depend on the learning rate
- * only) their shares, and each pair of the two its sums.
+ * The swamping sums of one assessment against a fixed list of formats. Weights of equal laws (the layers of one
+ * width) share their binade masses, updates of equal laws (Adam's, set by the learning rate alone) their shares,
+ * and each pair of the two its sums.
  */
 export class SwampingSums {
-  private readonly weights = new ByProfile((weight) => ({ weight, binades: weight.rms > 0 ? weightBinades(weight) : null }));
-  private readonly updates = new ByProfile((update) => new UpdateShares(shareBelow(update)));
+  private readonly weights = new ByLaw((weight) => ({ weight, binades: weight.rms > 0 ? weightBinades(weight) : null }));
+  private readonly updates = new ByLaw((update) => new UpdateShares(shareBelow(update)));
 
   // for each format, the first of the list with its precision and range: equal formats share one sum
   private readonly first: number[];
@@ -147,8 +169,8 @@ export class SwampingSums {
 
   /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
   lost(weight: MagnitudeProfile, update: MagnitudeProfile): Float64Array {
-    const w = this.weights.get(weight);
-    const shares = this.updates.get(update);
+    const w = this.weights.get(lawOf(weight, weight.zeroFraction));
+    const shares = this.updates.get(lawOf(update));
     let lost = shares.lost.get(w);
     if (lost === undefined) {
       lost = new Float64Array(this.formats.length);

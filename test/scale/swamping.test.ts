@@ -3,7 +3,7 @@ import { describe, expect, it } from "vitest";
 import { FORMAT_NAMES, getFormat } from "../../src/formats/index.js";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { fractionBelow } from "../../src/risk/index.js";
-import { SwampingSums, type SwampingFormat } from "../../src/scale/swamping.js";
+import { lawOf, SwampingSums, type SwampingFormat } from "../../src/scale/swamping.js";
 
 /**
  * The swamping sum written plainly, as the optimizer check had it before the shared tables: Σ over the weight's
@@ -118,6 +118,24 @@ describe("SwampingSums (the optimizer check's swamping sums over shared tables)"
         },
       ),
       { numRuns: 60 },
+    );
+  });
+
+  // the tables are shared by law (lawOf): this holds only while fractionBelow reads nothing else of a profile
+  it("shares tables only between profiles whose shares below every threshold are equal", () => {
+    fc.assert(
+      fc.property(
+        pair,
+        fc.double({ min: -80, max: 20, noNaN: true }),
+        fc.record({ meanSquare: fc.double({ min: 0, max: 10, noNaN: true }), maxElement: fc.double({ min: 0, max: 10, noNaN: true }) }),
+        ([profile], log2T, extra) => {
+          const t = 2 ** log2T;
+          const share = fractionBelow(profile, t);
+          expect(fractionBelow(lawOf(profile), t)).toBe(share);
+          expect(fractionBelow({ ...profile, ...extra, coherentRms: 2 * profile.rms }, t)).toBe(share);
+        },
+      ),
+      { numRuns: 400 },
     );
   });
 
