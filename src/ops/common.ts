@@ -118,3 +118,14 @@ export function correlatedSum(batch: number, positions: number, q: number, sampl
   // a sum forced to zero (a gradient below batch norm summed over its batch) has no second moment left
   return Math.max(terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation)), 0);
 }
+
+/**
+ * E[(Σ_t x_t·δ_t)²] for a weight gradient summed over batch × positions: pairs of terms add E[x x']·E[δ δ'] (the
+ * parts samples and positions share, input and gradient taken as independent: Schoenholz et al. 2017); with δ alone
+ * (`input` omitted), the sum of the gradient itself, as for a bias.
+ */
+export function gradientSum(batch: number, positions: number, delta: Gradient, input?: Signal): number {
+  if (input === undefined) return correlatedSum(batch, positions, delta.q, sampleCorrelationOf(delta), positionCorrelationOf(delta));
+  const sample = sampleCorrelationOf(input) * sampleCorrelationOf(delta);
+  return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta));
+}

@@ -16,13 +16,12 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { AttentionLayer } from "../../spec/types.js";
 import {
   SOURCES,
-  correlatedSum,
   factor,
   fmt,
+  gradientSum,
   linearGradient,
   linearOutput,
   positionCorrelationOf,
-  sampleCorrelationOf,
   sharedOf,
   sumLogVar,
   weightOf,
@@ -377,10 +376,10 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // key j's own value deviation, independent between keys
     const queryGradient: Gradient = { ...g(queryQ), positionCorrelation: heads.positionCorrelation ?? 0 };
     const keyGradient: Gradient = { ...g(keyQ), positionCorrelation: 0 };
-    const wg = (weight: string, x: Signal, deltaQ: number, delta: Gradient, logVar: number): WeightGradientMoment => ({
+    const wg = (weight: string, x: Signal, delta: Gradient, logVar: number): WeightGradientMoment => ({
       weight,
-      q: correlatedSum(ctx.batch, P, x.q * deltaQ, sampleCorrelationOf(x) * sampleCorrelationOf(delta), positionCorrelationOf(x) * positionCorrelationOf(delta)),
-      coherentQ: N * N * x.q * deltaQ,
+      q: gradientSum(ctx.batch, P, delta, x),
+      coherentQ: N * N * x.q * delta.q,
       terms: N,
       zeroFraction: 0,
       logVar,
@@ -397,10 +396,10 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       ],
       inner: innerGradients,
       weightGradients: [
-        wg("query", stash.input, queryQ, queryGradient, stash.input.logVar + heads.logVar),
-        wg("key", stash.input, keyQ, keyGradient, stash.input.logVar + heads.logVar),
-        wg("value", stash.input, valueQ, valueGradient, stash.input.logVar + heads.logVar),
-        wg("output", stash.heads, output.q, output, stash.heads.logVar + output.logVar),
+        wg("query", stash.input, queryGradient, stash.input.logVar + heads.logVar),
+        wg("key", stash.input, keyGradient, stash.input.logVar + heads.logVar),
+        wg("value", stash.input, valueGradient, stash.input.logVar + heads.logVar),
+        wg("output", stash.heads, output, stash.heads.logVar + output.logVar),
       ],
     };
   },

@@ -5,19 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import {
-  SOURCES,
-  correlatedSum,
-  factor,
-  fmt,
-  linearGradient,
-  linearOutput,
-  maybeWeight,
-  positionCorrelationOf,
-  sampleCorrelationOf,
-  sharedOf,
-  weightOf,
-} from "../common.js";
+import { SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -89,13 +77,12 @@ export function linearBackward(
   const terms = ctx.batch * positions;
   // the batch × positions sum is partly coherent: pairs of terms add E[x x']·E[δ δ'], the parts samples and positions share
   const x = stash.input;
-  const sum = (q: number, sample: number, position: number): number => correlatedSum(ctx.batch, positions, q, sample, position);
   // a row (column) of the weight gradient is exactly zero when its unit's gradient (input) is zero at every term
   const deltaZero = output.allZero ?? 0;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",
-      q: sum(x.q * output.q, sampleCorrelationOf(x) * sampleCorrelationOf(output), positionCorrelationOf(x) * positionCorrelationOf(output)),
+      q: gradientSum(ctx.batch, positions, output, x),
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
@@ -106,7 +93,7 @@ export function linearBackward(
   if (maybeWeight(layer, "bias") !== undefined) {
     weightGradients.push({
       weight: "bias",
-      q: sum(output.q, sampleCorrelationOf(output), positionCorrelationOf(output)),
+      q: gradientSum(ctx.batch, positions, output),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,

@@ -7,18 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { GatedFeedForwardLayer } from "../../spec/types.js";
-import {
-  SOURCES,
-  correlatedSum,
-  factor,
-  fmt,
-  linearGradient,
-  linearOutput,
-  positionCorrelationOf,
-  sampleCorrelationOf,
-  sharedOf,
-  weightOf,
-} from "../common.js";
+import { SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
@@ -167,7 +156,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const N = ctx.batch * P;
     const wgm = (weight: string, x: Signal, delta: Gradient): WeightGradientMoment => ({
       weight,
-      q: correlatedSum(ctx.batch, P, x.q * delta.q, sampleCorrelationOf(x) * sampleCorrelationOf(delta), positionCorrelationOf(x) * positionCorrelationOf(delta)),
+      q: gradientSum(ctx.batch, P, delta, x),
       coherentQ: N * N * x.q * delta.q,
       terms: N,
       zeroFraction: 0,

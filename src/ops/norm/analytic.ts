@@ -8,7 +8,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
-import { correlatedSum, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -125,7 +125,7 @@ export const normRule: AnalyticRule<NormStash> = {
     if (maybeWeight(layer, "bias") !== undefined) {
       weightGradients.push({
         weight: "bias",
-        q: correlatedSum(ctx.batch, positions, output.q, sampleCorrelationOf(output), positionCorrelationOf(output)),
+        q: gradientSum(ctx.batch, positions, output),
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
