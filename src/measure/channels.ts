@@ -89,13 +89,16 @@ export class ChannelAccumulator {
   /**
    * The running sums, for a pass that feeds them itself (TensorAccumulator, in its counting pass): the squares per
    * fast-axis channel (fastSum.length is the run length along the fast storage axis), and per slow-axis channel the
-   * sum and largest square, non-finite values left out.
+   * sum and largest square, non-finite values left out (a pass that added some puts the sums back with restore).
    */
   readonly sums: ChannelSums;
 
   /** the sums a chunk can change, as they were before it (see {@link save}) */
   private saved = new Float64Array(0);
-  private savedAt = { fast: 0, fastSpan: 0, slow: 0, slowSpan: 0 };
+  private savedFast = 0;
+  private savedFastSpan = 0;
+  private savedSlow = 0;
+  private savedSlowSpan = 0;
 
   /**
    * Keep a copy of the sums that `length` values from storage index `first` can change, so that a pass that fed
@@ -108,7 +111,10 @@ export class ChannelAccumulator {
     const fastSpan = Math.min(count, length);
     const slowSpan = Math.min(this.slowSum.length - slow, Math.ceil((fast + length) / count));
     if (this.saved.length < fastSpan + 2 * slowSpan) this.saved = new Float64Array(fastSpan + 2 * slowSpan);
-    this.savedAt = { fast, fastSpan, slow, slowSpan };
+    this.savedFast = fast;
+    this.savedFastSpan = fastSpan;
+    this.savedSlow = slow;
+    this.savedSlowSpan = slowSpan;
     // the fast-axis channels from `fast` on, wrapping around to 0 when the values reach into the next run
     const head = Math.min(count - fast, fastSpan);
     this.saved.set(this.fastSum.subarray(fast, fast + head), 0);
@@ -119,7 +125,7 @@ export class ChannelAccumulator {
 
   /** Put back the sums kept by the last {@link save}. */
   restore(): void {
-    const { fast, fastSpan, slow, slowSpan } = this.savedAt;
+    const [fast, fastSpan, slow, slowSpan] = [this.savedFast, this.savedFastSpan, this.savedSlow, this.savedSlowSpan];
     const head = Math.min(this.fastCount - fast, fastSpan);
     this.fastSum.set(this.saved.subarray(0, head), fast);
     this.fastSum.set(this.saved.subarray(head, fastSpan), 0);
