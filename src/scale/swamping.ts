@@ -9,7 +9,7 @@
  */
 import type { Format } from "../formats/index.js";
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, fractionBelow, nonzeroElements } from "../risk/index.js";
+import { elementLaw, fractionBelow, nonzeroElements, sameDistribution } from "../risk/index.js";
 
 /** What the swamping sum needs of a format: its precision p and the exponent of its smallest normal. */
 export type SwampingFormat = Pick<Format, "precision" | "emin">;
@@ -72,7 +72,7 @@ class UpdateShares implements SharesByExponent {
   private base = 0;
   private values = new Float64Array(0);
   /** the lost shares already summed against it, by weight */
-  readonly lost = new Map<object, Float64Array>();
+  readonly sums = new Map<object, readonly number[]>();
 
   constructor(private readonly below: (t: number) => number) {}
 
@@ -120,7 +120,7 @@ export function lawOf(profile: MagnitudeProfile, zeroFraction = 0): MagnitudePro
 }
 
 // Values derived from the law of a profile (lawOf), shared by every profile with an equal law: found by rms,
-// then field by field.
+// then by the fields the risk numbers read.
 class ByLaw<T> {
   private readonly entries = new Map<number, { law: MagnitudeProfile; value: T }[]>();
 
@@ -132,19 +132,7 @@ class ByLaw<T> {
       list = [];
       this.entries.set(law.rms, list);
     }
-    for (const entry of list) {
-      const known = entry.law;
-      if (
-        known.shape === law.shape &&
-        known.log2Spread === law.log2Spread &&
-        known.elements === law.elements &&
-        known.zeroFraction === law.zeroFraction &&
-        known.bound === law.bound &&
-        known.elementLog2Spread === law.elementLog2Spread
-      ) {
-        return entry.value;
-      }
-    }
+    for (const entry of list) if (sameDistribution(entry.law, law)) return entry.value;
     const value = this.derive(law);
     list.push({ law, value });
     return value;
@@ -168,18 +156,17 @@ export class SwampingSums {
   }
 
   /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
-  lost(weight: MagnitudeProfile, update: MagnitudeProfile): Float64Array {
+  lost(weight: MagnitudeProfile, update: MagnitudeProfile): readonly number[] {
     const w = this.weights.get(lawOf(weight, weight.zeroFraction));
     const shares = this.updates.get(lawOf(update));
-    let lost = shares.lost.get(w);
-    if (lost === undefined) {
-      lost = new Float64Array(this.formats.length);
-      for (let i = 0; i < lost.length; i++) {
-        const same = this.first[i] as number;
-        lost[i] = same < i ? (lost[same] as number) : sumLost(w.weight, w.binades, shares, this.formats[i] as SwampingFormat);
-      }
-      shares.lost.set(w, lost);
+    const known = shares.sums.get(w);
+    if (known !== undefined) return known;
+    const lost: number[] = [];
+    for (let i = 0; i < this.formats.length; i++) {
+      const same = this.first[i] as number;
+      lost.push(same < i ? (lost[same] as number) : sumLost(w.weight, w.binades, shares, this.formats[i] as SwampingFormat));
     }
+    shares.sums.set(w, lost);
     return lost;
   }
 }
