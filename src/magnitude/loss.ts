@@ -11,7 +11,8 @@
  * logits, which are N(0, s²) across classes, so every class has the same E[p²] and
  * E[(1 − p_y)²] = 1 − 2/C + E[p²]; E[p²] and the loss E[ln Σ e^z] are the exact Gaussian expectations of
  * src/numeric/softmax.ts (Laplace-transform quadrature, Cressie et al. 1981). Their log-normal-sum approximation
- * e^(s²)/C² overstates E[p²] by 2.7× at s² = 2 with 10 classes.
+ * e^(s²)/C² overstates E[p²] by 2.7× at s² = 2 with 10 classes. The part two samples share, E[p_n p_m] − 1/C² for
+ * logits correlated by c across samples, is the same quadrature over the common part of the logits.
  *
  * End of the horizon, derived here: a trained model's typical right-class probability is p_y ≈ e^(−finalLoss)
  * (the loss is the mean of −ln p_y), so the right-class gradient shrinks from (1 − 1/C) to (1 − e^(−finalLoss)),
@@ -27,7 +28,7 @@
  */
 import type { LossSpec } from "../spec/types.js";
 import type { Gradient, Signal } from "../ops/types.js";
-import { gaussianSoftmaxMoments } from "../numeric/softmax.js";
+import { gaussianSoftmaxMoments, gaussianSoftmaxPairMoment } from "../numeric/softmax.js";
 
 /** The loss value and the gradient tensors it seeds. */
 export interface LossSeed {
@@ -89,9 +90,9 @@ export function lossSeed(
     const perTerm = endLoss !== undefined ? endLoss : gaussianSoftmaxMoments(s2, C).logSumExp;
     const valueLogVar = end ? 0 : logVarOf((v) => gaussianSoftmaxMoments(v, C).logSumExp, s2, V);
     // two samples' logits correlated by c share part of p; with labels independent across samples,
-    // E[δ_n δ_m] per element = E[p_n p_m] − 2E[p]/C + 1/C² = (e^(c·s²) − 1)/C² (log-normal p; derived)
+    // E[δ_n δ_m] per element = E[p_n p_m] − 2E[p]/C + 1/C² = E[p_n p_m] − 1/C² (derived), E[p_n p_m] exact
     const c = s2Mean > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2Mean, 0), 1) : 0;
-    const sharedQ = ((Math.exp(c * s2Mean) - 1) / (C * C)) * k * k;
+    const sharedQ = Math.max(gaussianSoftmaxPairMoment(s2, c, C) - 1 / (C * C), 0) * k * k * Math.exp(total.logVar / 2);
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
       valueLogVar,

@@ -4,7 +4,7 @@
  * the small-variance expansion; the many-class limit; and a seeded Monte Carlo.
  */
 import { describe, expect, it } from "vitest";
-import { createRandom, gaussianSoftmaxMoments } from "../../src/numeric/index.js";
+import { createRandom, gaussHermite, gaussianSoftmaxMoments, gaussianSoftmaxPairMoment } from "../../src/numeric/index.js";
 
 const rel = (a: number, b: number): number => Math.abs(a / b - 1);
 
@@ -91,5 +91,68 @@ describe("gaussianSoftmaxMoments", () => {
   it("returns NaN for a negative variance or no classes", () => {
     expect(gaussianSoftmaxMoments(-1, 10).second).toBeNaN();
     expect(gaussianSoftmaxMoments(1, 0).second).toBeNaN();
+  });
+});
+
+describe("gaussianSoftmaxPairMoment", () => {
+  it("ends: 1/C² for uncorrelated samples, E[p²] for identical ones", () => {
+    expect(gaussianSoftmaxPairMoment(1, 0, 10)).toBe(0.01);
+    expect(gaussianSoftmaxPairMoment(1, 1, 10)).toBe(gaussianSoftmaxMoments(1, 10).second);
+    expect(Math.abs(gaussianSoftmaxPairMoment(1, 0.9999, 10) / gaussianSoftmaxMoments(1, 10).second - 1)).toBeLessThan(1e-3);
+  });
+
+  it("two classes: E[σ(d_n)σ(d_m)] for d ~ N(0, 2s²) with correlation c, by an independent 2 × 80-node Gauss–Hermite rule", () => {
+    const { nodes, weights } = gaussHermite(80);
+    const sigmoid = (x: number): number => 1 / (1 + Math.exp(-x));
+    for (const [v, c] of [[0.5, 0.5], [2, 0.3], [1, 0.9]] as const) {
+      const sd = Math.sqrt(2 * v);
+      let outer = 0;
+      for (let i = 0; i < nodes.length; i++) {
+        const a = Math.SQRT2 * (nodes[i] as number);
+        let inner = 0; // E over the sample's own part, given the common part a
+        for (let j = 0; j < nodes.length; j++) inner += (weights[j] as number) * sigmoid(sd * (Math.sqrt(c) * a + Math.sqrt(1 - c) * Math.SQRT2 * (nodes[j] as number)));
+        inner /= Math.sqrt(Math.PI);
+        outer += (weights[i] as number) * inner * inner;
+      }
+      expect(gaussianSoftmaxPairMoment(v, c, 2)).toBeCloseTo(outer / Math.sqrt(Math.PI), 8);
+    }
+  });
+
+  it("small correlation: the first-order Hermite term c·s²·(1/C − E[p²])²·C/(C − 1) (derived), joined smoothly at c·s² = 10⁻³", () => {
+    const m2 = gaussianSoftmaxMoments(1, 10).second;
+    const below = gaussianSoftmaxPairMoment(1, 0.99e-3, 10);
+    const above = gaussianSoftmaxPairMoment(1, 1.01e-3, 10);
+    const slope = ((1 / 10 - m2) ** 2 * 10) / 9;
+    expect((below - 0.01) / 0.99e-3).toBeCloseTo(slope, 8);
+    expect(Math.abs((above - 0.01) / 1.01e-3 / slope - 1)).toBeLessThan(0.01);
+  });
+
+  it("agrees with a seeded Monte Carlo within 4 standard errors (10 classes, s² = 1 and 2, c = 0.5 and 0.9)", () => {
+    for (const [v, c] of [[1, 0.5], [2, 0.9]] as const) {
+      const random = createRandom(99);
+      const s = Math.sqrt(v);
+      const samples = 30000;
+      let sum = 0;
+      let sumSquares = 0;
+      for (let r = 0; r < samples; r++) {
+        let sn = 0;
+        let sm = 0;
+        let first = 0;
+        for (let j = 0; j < 10; j++) {
+          const common = Math.sqrt(c) * random.normal();
+          const en = Math.exp(s * (common + Math.sqrt(1 - c) * random.normal()));
+          const em = Math.exp(s * (common + Math.sqrt(1 - c) * random.normal()));
+          sn += en;
+          sm += em;
+          if (j === 0) first = en * em;
+        }
+        const product = first / (sn * sm);
+        sum += product;
+        sumSquares += product * product;
+      }
+      const mean = sum / samples;
+      const error = Math.sqrt((sumSquares / samples - mean * mean) / samples);
+      expect(Math.abs(gaussianSoftmaxPairMoment(v, c, 10) - mean)).toBeLessThan(4 * error);
+    }
   });
 });
