@@ -195,6 +195,19 @@ const HALF_WEIGHTS = trapezoidWeights(HALF_STRIDE);
 const THREE_QUARTER_WEIGHTS = trapezoidWeights(THREE_QUARTER_STRIDE);
 const COARSE_AGREEMENT = 1e-10;
 const COARSE_END_SHARE = 1e-13;
+// The scale factors 2^(spread·z_i) of the rule's nodes for the spread last asked for: consecutive calls mostly
+// share a profile (several thresholds of one tensor, a search over loss scales), so each power is taken once.
+let factorsSpread = NaN;
+const FACTORS = new Float64Array(DRAW_NODES.z.length);
+function nodeFactors(log2Spread: number): Float64Array {
+  if (log2Spread !== factorsSpread) {
+    const { z } = DRAW_NODES;
+    for (let i = 0; i < z.length; i++) FACTORS[i] = 2 ** (log2Spread * (z[i] as number));
+    factorsSpread = log2Spread;
+  }
+  return FACTORS;
+}
+
 // integrand values of one call (overDraws never re-enters itself: its f are element laws)
 const VALUES = new Float64Array(DRAW_NODES.z.length);
 
@@ -208,10 +221,11 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   if (!(log2Spread > 0)) return f(rms);
   const { z, w } = DRAW_NODES;
   const last = z.length - 1;
+  const factors = nodeFactors(log2Spread);
   // every f here is monotone in r, so equal values at the two extreme draws mean a constant integrand
   // (an overflow far out of reach, a share that is 0 or 1 for every draw): one evaluation pair instead of all
-  const low = f(rms * 2 ** (log2Spread * (z[0] as number)));
-  const high = f(rms * 2 ** (log2Spread * (z[last] as number)));
+  const low = f(rms * (factors[0] as number));
+  const high = f(rms * (factors[last] as number));
   if (low === high) return Math.min(1, Math.max(0, low));
   const values = VALUES;
   values[0] = low;
@@ -219,14 +233,14 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   let half = HALF_WEIGHTS[0]! * low + HALF_WEIGHTS[last]! * high;
   let threeQuarter = THREE_QUARTER_WEIGHTS[0]! * low + THREE_QUARTER_WEIGHTS[last]! * high;
   for (let i = HALF_STRIDE; i < last; i += HALF_STRIDE) {
-    const value = f(rms * 2 ** (log2Spread * (z[i] as number)));
+    const value = f(rms * (factors[i] as number));
     values[i] = value;
     half += HALF_WEIGHTS[i]! * value;
   }
   for (let i = THREE_QUARTER_STRIDE; i < last; i += THREE_QUARTER_STRIDE) {
     let value = values[i] as number;
     if (i % HALF_STRIDE !== 0) {
-      value = f(rms * 2 ** (log2Spread * (z[i] as number)));
+      value = f(rms * (factors[i] as number));
       values[i] = value;
     }
     threeQuarter += THREE_QUARTER_WEIGHTS[i]! * value;
@@ -242,7 +256,7 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
     const previous = Math.max(i - (i % HALF_STRIDE), i - (i % THREE_QUARTER_STRIDE));
     const next = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
     const before = values[previous] as number;
-    values[i] = before === values[next] ? before : f(rms * 2 ** (log2Spread * (z[i] as number)));
+    values[i] = before === values[next] ? before : f(rms * (factors[i] as number));
   }
   let sum = (w[0] as number) * low + (w[last] as number) * high;
   for (let i = 1; i < last; i++) sum += (w[i] as number) * (values[i] as number);
@@ -309,9 +323,9 @@ export function overDrawsBounds(rms: number, log2Spread: number, f: (r: number) 
     const value = f(rms);
     return [value, value];
   }
-  const { z } = DRAW_NODES;
-  const a = f(rms * 2 ** (log2Spread * (z[0] as number)));
-  const b = f(rms * 2 ** (log2Spread * (z[z.length - 1] as number)));
+  const factors = nodeFactors(log2Spread);
+  const a = f(rms * (factors[0] as number));
+  const b = f(rms * (factors[factors.length - 1] as number));
   if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
   return [Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12))];
 }
