@@ -195,17 +195,21 @@ const HALF_WEIGHTS = trapezoidWeights(HALF_STRIDE);
 const THREE_QUARTER_WEIGHTS = trapezoidWeights(THREE_QUARTER_STRIDE);
 const COARSE_AGREEMENT = 1e-10;
 const COARSE_END_SHARE = 1e-13;
-// The scale factors 2^(spread·z_i) of the rule's nodes for the spread last asked for: consecutive calls mostly
-// share a profile (several thresholds of one tensor, a search over loss scales), so each power is taken once.
-let factorsSpread = NaN;
-const FACTORS = new Float64Array(DRAW_NODES.z.length);
+// The scale factors 2^(spread·z_i) of the rule's nodes per spread: the calls for one profile (several thresholds
+// of a tensor, a search over loss scales) share its spread, so each power is taken once. Bounded, so a
+// long-running batch worker does not grow without end.
+const FACTORS = new Map<number, Float64Array>();
+const FACTORS_LIMIT = 4096;
 function nodeFactors(log2Spread: number): Float64Array {
-  if (log2Spread !== factorsSpread) {
+  let factors = FACTORS.get(log2Spread);
+  if (factors === undefined) {
     const { z } = DRAW_NODES;
-    for (let i = 0; i < z.length; i++) FACTORS[i] = 2 ** (log2Spread * (z[i] as number));
-    factorsSpread = log2Spread;
+    factors = new Float64Array(z.length);
+    for (let i = 0; i < z.length; i++) factors[i] = 2 ** (log2Spread * (z[i] as number));
+    if (FACTORS.size >= FACTORS_LIMIT) FACTORS.clear();
+    FACTORS.set(log2Spread, factors);
   }
-  return FACTORS;
+  return factors;
 }
 
 // integrand values of one call (overDraws never re-enters itself: its f are element laws)
@@ -323,9 +327,9 @@ export function overDrawsBounds(rms: number, log2Spread: number, f: (r: number) 
     const value = f(rms);
     return [value, value];
   }
-  const factors = nodeFactors(log2Spread);
-  const a = f(rms * (factors[0] as number));
-  const b = f(rms * (factors[factors.length - 1] as number));
+  const { z } = DRAW_NODES;
+  const a = f(rms * 2 ** (log2Spread * (z[0] as number)));
+  const b = f(rms * 2 ** (log2Spread * (z[z.length - 1] as number)));
   if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
   return [Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12))];
 }
