@@ -11,16 +11,7 @@
  * imports one memory, which holds the packed panels and the output tiles.
  */
 
-// lib ES2022 and @types/node 20 do not declare the WebAssembly global; this is the part used here.
-interface WasmMemory {
-  readonly buffer: ArrayBuffer;
-  grow(pages: number): number;
-}
-declare const WebAssembly: {
-  Memory: new (descriptor: { initial: number }) => WasmMemory;
-  Module: new (bytes: Uint8Array) => object;
-  Instance: new (module: object, imports: Record<string, Record<string, unknown>>) => { exports: Record<string, unknown> };
-};
+import { CodeBuilder, I32, instantiate, op, PAGE_BYTES, V128, type WasmFunction, type WasmMemory } from "./wasm.js";
 
 /** Rows and columns of an output tile: a packed A panel is TILE rows, a packed B panel TILE columns (two f64x2 lanes). */
 export const TILE = 4;
@@ -29,64 +20,6 @@ const NR = TILE;
 
 type TileFunction = (mPanels: number, nPanels: number, kc: number, aByte: number, bByte: number, cByte: number, ldcBytes: number) => void;
 
-// --- a minimal WebAssembly assembler (binary format: WebAssembly Core Specification 2.0, chapter 5) ---
-
-function unsignedLeb(n: number): number[] {
-  const out: number[] = [];
-  do {
-    let byte = n & 0x7f;
-    n >>>= 7;
-    if (n !== 0) byte |= 0x80;
-    out.push(byte);
-  } while (n !== 0);
-  return out;
-}
-
-function signedLeb(n: number): number[] {
-  const out: number[] = [];
-  for (;;) {
-    const byte = n & 0x7f;
-    n >>= 7;
-    if ((n === 0 && (byte & 0x40) === 0) || (n === -1 && (byte & 0x40) !== 0)) {
-      out.push(byte);
-      return out;
-    }
-    out.push(byte | 0x80);
-  }
-}
-
-const vector = (items: number[][]): number[] => [...unsignedLeb(items.length), ...items.flat()];
-const section = (id: number, bytes: number[]): number[] => [id, ...unsignedLeb(bytes.length), ...bytes];
-const name = (text: string): number[] => vector([...text].map((ch) => [ch.charCodeAt(0)]));
-const simd = (opcode: number): number[] => [0xfd, ...unsignedLeb(opcode)];
-
-const I32 = 0x7f;
-const V128 = 0x7b;
-const op = {
-  localGet: (i: number) => [0x20, ...unsignedLeb(i)],
-  localSet: (i: number) => [0x21, ...unsignedLeb(i)],
-  localTee: (i: number) => [0x22, ...unsignedLeb(i)],
-  i32Const: (v: number) => [0x41, ...signedLeb(v)],
-  i32Add: [0x6a],
-  i32Mul: [0x6c],
-  i32GeU: [0x4f],
-  /** a block or loop without results */
-  block: [0x02, 0x40],
-  loop: [0x03, 0x40],
-  end: [0x0b],
-  br: (depth: number) => [0x0c, ...unsignedLeb(depth)],
-  brIf: (depth: number) => [0x0d, ...unsignedLeb(depth)],
-  // memarg: log2 alignment, then the static offset in bytes
-  v128Load: (offset: number) => [...simd(0x00), 4, ...unsignedLeb(offset)],
-  v128Store: (offset: number) => [...simd(0x0b), 4, ...unsignedLeb(offset)],
-  v128Load64Splat: (offset: number) => [...simd(0x0a), 3, ...unsignedLeb(offset)],
-  v128Zero: [...simd(0x0c), ...new Array<number>(16).fill(0)],
-  f64x2Add: simd(0xf0),
-  f64x2Mul: simd(0xf2),
-  f32x4DemoteF64x2Zero: simd(0x5e),
-  f64x2PromoteLowF32x4: simd(0x5f),
-};
-
 /**
  * One exported function computing every MR×NR tile of an (mPanels·MR)×(nPanels·NR) block from packed panels:
  * tile (ip, jp) = A panel ip (kc steps of MR values) · B panel jp (kc steps of NR values), each output the
@@ -94,7 +27,7 @@ const op = {
  * `binary32`, every product and every partial sum is rounded to binary32 and back (demote then promote is
  * binary32 round to nearest even, as Math.fround).
  */
-function tileFunctionBody(binary32: boolean): number[] {
+function tileFunction(binary32: boolean): WasmFunction {
   // parameters 0..6, then i32 locals 7..12, then v128 locals
   const [mPanels, nPanels, kc, aByte, bByte, cByte, ldc] = [0, 1, 2, 3, 4, 5, 6];
   const [ip, jp, ai, bi, aEnd, ci] = [7, 8, 9, 10, 11, 12];
@@ -103,17 +36,9 @@ function tileFunctionBody(binary32: boolean): number[] {
   const b23 = b01 + 1;
   const a = b23 + 1;
   const round = binary32 ? [...op.f32x4DemoteF64x2Zero, ...op.f64x2PromoteLowF32x4] : [];
-  const code: number[] = [];
-  const emit = (...parts: number[][]): void => {
-    for (const part of parts) code.push(...part);
-  };
-  /** `counter` from 0 while below `limit`, around `body` */
-  const countedLoop = (counter: number, limit: number, body: () => void): void => {
-    emit(op.i32Const(0), op.localSet(counter), op.block, op.loop);
-    emit(op.localGet(counter), op.localGet(limit), op.i32GeU, op.brIf(1));
-    body();
-    emit(op.localGet(counter), op.i32Const(1), op.i32Add, op.localSet(counter), op.br(0), op.end, op.end);
-  };
+  const builder = new CodeBuilder();
+  const emit = builder.emit.bind(builder);
+  const countedLoop = builder.countedLoop.bind(builder);
   /** acc[slot] = acc[slot] + a·b (each rounded when binary32) */
   const multiplyAdd = (slot: number, b: number): void => {
     emit(op.localGet(acc + slot), op.localGet(a), op.localGet(b), op.f64x2Mul, round, op.f64x2Add, round, op.localSet(acc + slot));
@@ -145,27 +70,17 @@ function tileFunctionBody(binary32: boolean): number[] {
       }
     });
   });
-  const locals = vector([
-    [...unsignedLeb(6), I32],
-    [...unsignedLeb(2 * MR + 3), V128],
-  ]);
-  const body = [...locals, ...code, ...op.end];
-  return [...unsignedLeb(body.length), ...body];
+  return {
+    name: binary32 ? "tiles32" : "tiles64",
+    params: new Array<number>(7).fill(I32),
+    results: [],
+    locals: [
+      [6, I32],
+      [2 * MR + 3, V128],
+    ],
+    code: builder.code,
+  };
 }
-
-function assemble(): Uint8Array {
-  const tileType = [0x60, ...vector(new Array<number[]>(7).fill([I32])), 0];
-  return Uint8Array.from([
-    ...[0x00, 0x61, 0x73, 0x6d, 0x01, 0x00, 0x00, 0x00],
-    ...section(1, vector([tileType])),
-    ...section(2, vector([[...name("env"), ...name("memory"), 0x02, 0x00, 0x01]])),
-    ...section(3, vector([[0], [0]])),
-    ...section(7, vector([[...name("tiles64"), 0x00, 0], [...name("tiles32"), 0x00, 1]])),
-    ...section(10, vector([tileFunctionBody(false), tileFunctionBody(true)])),
-  ]);
-}
-
-const PAGE_BYTES = 65536;
 
 interface Kernel {
   memory: WasmMemory;
@@ -176,9 +91,8 @@ interface Kernel {
 
 let kernel: Kernel | undefined;
 
-function instantiate(): Kernel {
-  const memory = new WebAssembly.Memory({ initial: 32 });
-  const { exports } = new WebAssembly.Instance(new WebAssembly.Module(assemble()), { env: { memory } });
+function instantiateKernel(): Kernel {
+  const { memory, exports } = instantiate([tileFunction(false), tileFunction(true)], 32);
   return { memory, view: new Float64Array(memory.buffer), tiles64: exports.tiles64 as TileFunction, tiles32: exports.tiles32 as TileFunction };
 }
 
@@ -187,7 +101,7 @@ function instantiate(): Kernel {
  * until the next call (growing the memory detaches the old one); contents are scratch, not kept between products.
  */
 export function tileWorkspace(elements: number): Float64Array {
-  kernel ??= instantiate();
+  kernel ??= instantiateKernel();
   if (kernel.view.length < elements) {
     const missing = elements * 8 - kernel.memory.buffer.byteLength;
     kernel.memory.grow(Math.ceil(missing / PAGE_BYTES));
