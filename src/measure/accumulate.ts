@@ -13,15 +13,19 @@ import { binadeOf } from "../formats/index.js";
 import type { ChannelAccumulator } from "./channels.js";
 import { CAST_CLASS, CAST_CLASS_COUNT, type CastClass, type CastTarget } from "./classes.js";
 import {
-  countChunkChannels,
-  countRun,
-  INFINITY_BITS,
-  MERGE_EVERY,
-  MIN_NORMAL_BITS,
-  runResult,
-  valueOfBits,
+  countPass,
   FLAG,
+  INFINITY_BITS,
+  MAX_PASS,
+  MERGE_EVERY,
+  MIN_FUSED_RUN,
+  MIN_NORMAL_BITS,
+  releaseCounters,
+  runResult,
+  takeCounters,
+  valueOfBits,
   WAYS,
+  type Counters,
 } from "./fast32.js";
 
 const BUCKETS = 32768;
@@ -30,9 +34,7 @@ const BINADE_OFFSET = 1100;
 const BINADES = 2200;
 
 /** binary32 elements per counting pass at most (so flagged positions fit a bounded buffer) */
-const SLICE = 1 << 20;
-/** shortest channel run counted in the same pass as the channel squares; shorter runs take a second pass */
-const MIN_FUSED_RUN = 64;
+const SLICE = MAX_PASS;
 /** positions flagged by the counting pass; shared, since a pass runs to its end before another starts */
 let flagged = new Int32Array(0);
 
@@ -58,8 +60,6 @@ export interface BucketPlan {
   above: Uint8Array;
   /** binary32 bucket counters at rest: WAYS per bucket, FLAG for the buckets a boundary cuts, 0 elsewhere */
   base: Int32Array;
-  /** counters at rest, left by finished accumulators for the next ones */
-  spareCounts: Int32Array[];
 }
 
 const plans = new WeakMap<readonly CastTarget[], Map<number, BucketPlan>>();
@@ -167,7 +167,7 @@ function buildPlan(width: 32 | 64, targets: readonly CastTarget[]): BucketPlan {
   }
   const base = new Int32Array(width === 32 ? BUCKETS * WAYS : 0);
   if (width === 32) for (const [b] of cutsFor) base.fill(FLAG, b * WAYS, (b + 1) * WAYS);
-  return { width, targets, slow, classes, binade, cuts, above, base, spareCounts: [] };
+  return { width, targets, slow, classes, binade, cuts, above, base };
 }
 
 /** Per-target cast counts of one tensor. */
@@ -211,8 +211,11 @@ export class TensorAccumulator {
   private maxAbs = -1;
   private minNonzero = Infinity;
 
-  /** binary32 bucket counters (WAYS per bucket, from plan.base), merged into `hist` now and then; null when merged */
-  private counts: Int32Array | null = null;
+  /**
+   * binary32 bucket counters (WAYS per bucket, from plan.base), merged into `hist` now and then: the counting kernel's
+   * while this accumulator holds them, a copy when another took them, null when merged
+   */
+  private readonly counters: Counters = { counts: null };
   /** elements counted since the last merge, and the extremes of their |bits| (the bucket range to merge) */
   private unmerged = 0;
   private unmergedMax = 0;
@@ -251,17 +254,16 @@ export class TensorAccumulator {
     const n = values.length;
     if (n === 0) return;
     if (this.unmerged + n > MERGE_EVERY) this.merge();
-    const counts = (this.counts ??= this.plan.spareCounts.pop() ?? Int32Array.from(this.plan.base));
+    const counts = takeCounters(this.counters, this.plan.base);
     if (flagged.length < n) flagged = new Int32Array(Math.max(n, 2 * flagged.length));
     const bits = new Int32Array(values.buffer, values.byteOffset, n);
     let sum: number;
     const fused = channels !== undefined && channels.sums.fastSum.length >= MIN_FUSED_RUN;
     if (fused) {
-      const { fastSum, slowSum, slowMaxSquare } = channels.sums;
       channels.save(first, n);
-      sum = countChunkChannels(values, bits, counts, flagged, first, fastSum, slowSum, slowMaxSquare);
+      sum = countPass(values, flagged, channels.sums, first);
     } else {
-      sum = countRun(values, bits, counts, flagged);
+      sum = countPass(values, flagged);
       channels?.add(values, first);
     }
     const chunkMax = runResult[0]!;
@@ -326,7 +328,7 @@ export class TensorAccumulator {
 
   /** Add the counters to the histogram and reset them; zeros are all that is left in bucket 0. */
   private merge(): void {
-    const counts = this.counts;
+    const counts = this.counters.counts;
     if (!counts) return;
     const { hist, plan } = this;
     const base = plan.base;
@@ -350,8 +352,7 @@ export class TensorAccumulator {
     this.unmerged = 0;
     this.unmergedMax = 0;
     this.unmergedMin = 0x7fffffff;
-    if (plan.spareCounts.length < 2) plan.spareCounts.push(counts);
-    this.counts = null;
+    releaseCounters(this.counters, base);
   }
 
   private add64(values: Float64Array): void {
