@@ -82,6 +82,12 @@ export interface Gradient {
    * rectifier just before the pool sees the derivative at the window's maximum, not at a random element
    */
   windowMaximum?: number;
+  /**
+   * set by a ReLU's backward rule on the gradient it passes down: the sample and position correlations of the gradient
+   * before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose
+   * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']
+   */
+  reluGated?: { sample: number; position: number };
 }
 
 /** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */

@@ -119,6 +119,22 @@ describe("batch norm's gradient sums to zero over batch × pixels (Ioffe & Szege
   });
 });
 
+describe("a norm's gain gradient when a ReLU gates the gradient right after it", () => {
+  const spec = makeSpec([conv("c", 4), norm("bn", "batch-norm"), act("r"), flatten("f"), dense("out", 3)], { input: image(2, 6, 6), loss: crossEntropy(3) });
+  const layer = layerOf(spec, "bn");
+  test("x̂·relu'(x̂)·b = relu(x̂)·b: pixels with a shared b (an average-pool's copy) share E[relu(u)relu(v)] = q/2π at c = 0 (Cho & Saul 2009)", () => {
+    const ctx = context(8);
+    const forward = normRule.forward(ctx, layer, { ...signal(2, 0), mean: 0, shared: 0 }, {});
+    const gated: Gradient = { q: 0.5, zeroFraction: 0.5, shape: "gaussian", logVar: 0, shared: 0, positionCorrelation: 0.5, reluGated: { sample: 0, position: 1 } };
+    const gain = normRule.backward(ctx, layer, forward.stash, gated, {}).weightGradients.find((w) => w.weight === "gain");
+    const ns = forward.stash.normalisedSecond;
+    // diagonal E[x̂²·1(x̂ > 0)]·E[b²] = (ns/2)·1; pairs of pixels (ns/2π)·1, i.e. correlation 1/π; pairs of samples the same mean part
+    expect(gain?.q).toBeCloseTo(correlatedSum(8, 36, ns * 0.5, 0, 1 / Math.PI), 9);
+    const ungated = normRule.backward(ctx, layer, forward.stash, { ...gated, reluGated: undefined }, {}).weightGradients.find((w) => w.weight === "gain");
+    expect(ungated?.q).toBeCloseTo(8 * 36 * ns * 0.5, 9);
+  });
+});
+
 describe("ReLU units off for the whole batch give exact zeros in the weight gradients", () => {
   test("bias gradient: P(a unit is off for all B samples) at the pre-activations' correlation; weights: either side all zero", () => {
     const B = 16;

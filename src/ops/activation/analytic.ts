@@ -231,6 +231,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
+  if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output) };
   return { gradient, ratio: derivativeSecond, rule };
 }
 

@@ -8,6 +8,8 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
+import { activationMoments } from "../../numeric/activations.js";
+import { crossMoments } from "../activation/analytic.js";
 import { correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
@@ -31,6 +33,20 @@ export function normTerms(layer: GraphLayer, batch: number): number {
   if (family === "batch-norm") return batch * positionCount(layer.input);
   if (layer.input.layout === "image") return sampleElements(layer.input);
   return layer.input.layout === "features" ? layer.input.features : 1;
+}
+
+/**
+ * Correlations (two samples, two positions) of the gain gradient's terms x̂·δ. When a ReLU gates the gradient right
+ * after the norm, δ = relu'(x̂)·b and x̂·δ = relu(x̂)·b: a pair shares E[relu(x̂)relu(x̂')]·E[b b'] (arc-cosine kernel,
+ * Cho & Saul 2009) against E[x̂²·relu'(x̂)]·E[b²] = E[x̂²]/2·E[b²] on the diagonal. Otherwise x̂ and δ are independent.
+ */
+function gainPairCorrelations(stash: NormStash, output: Gradient): [number, number] {
+  const c = stash.normalisedCorrelation;
+  const q = stash.normalisedSecond;
+  if (output.reluGated === undefined || !(q > 0)) return [c.sample * sampleCorrelationOf(output), c.position * positionCorrelationOf(output)];
+  const m = activationMoments("relu", q);
+  const pair = (x: number, b: number): number => (2 * crossMoments("relu", 0, q, x, m).value * b) / q;
+  return [pair(c.sample, output.reluGated.sample), pair(c.position, output.reluGated.position)];
 }
 
 export const normRule: AnalyticRule<NormStash> = {
@@ -108,13 +124,7 @@ export const normRule: AnalyticRule<NormStash> = {
       {
         weight: "gain",
         // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
-        q: correlatedSum(
-          ctx.batch,
-          positions,
-          stash.normalisedSecond * output.q,
-          stash.normalisedCorrelation.sample * sampleCorrelationOf(output),
-          stash.normalisedCorrelation.position * positionCorrelationOf(output),
-        ),
+        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...gainPairCorrelations(stash, output)),
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
