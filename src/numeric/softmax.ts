@@ -66,28 +66,10 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
   const hit = cache.get(key);
   if (hit !== undefined) return hit;
   const s = Math.sqrt(variance);
-  // Z grid x_i = −Z_RANGE + i·h with s·h = U_STEP/k, so that every u + s·x_i falls on one lattice of spacing
-  // U_STEP/k and the transcendental parts are evaluated once per lattice point
-  const k = Math.ceil(U_STEP / Math.min(0.3, U_STEP * s));
-  const spacing = U_STEP / k;
-  const h = spacing / s;
-  const n = 2 * Math.ceil(Z_RANGE / h) + 1;
-  const weight = new Float64Array(n);
-  let total = 0;
-  for (let i = 0; i < n; i++) {
-    const x = (i - (n - 1) / 2) * h;
-    weight[i] = Math.exp(-0.5 * x * x);
-    total += weight[i] as number;
-  }
-  // normalised to sum to exactly 1, so that L_0 ≤ 1 and its power stays finite
-  for (let i = 0; i < n; i++) weight[i] = (weight[i] as number) / total;
-  // u = ln t: below `low` every integrand is below e^(−37) (small-t forms t·C·e^(s²/2) and t²·e^(2s²));
-  // above `high` L_0(t) ≈ Φ(−u/s) and e^(−t) have vanished
-  const low = -40 - Math.log(C) - variance;
-  const steps = Math.ceil((10 * s + 45 + Math.log(C) + variance) / U_STEP);
-  // lattice v_j = low − s·x_max + j·spacing, y = e^v: 1 − e^(−y), y·e^(−y), y²·e^(−y)
-  const latticeLength = steps * k + n;
-  const base = low - s * ((n - 1) / 2) * h;
+  // u = ln t on steps of U_STEP, Z on a grid with s·h = U_STEP/k: every u + s·x_i falls on one lattice, so the
+  // transcendental parts are evaluated once per lattice point v_j = base + j·spacing (y = e^v: 1 − e^(−y), y·e^(−y),
+  // y²·e^(−y)); the weights sum to exactly 1, so that L_0 ≤ 1 and its power stays finite
+  const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, U_STEP * s), s, variance, C);
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);
   const a2 = new Float64Array(latticeLength);
@@ -163,19 +145,10 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   const key = `${variance}|${c}|${C}`;
   const hit = pairCache.get(key);
   if (hit !== undefined) return hit;
-  const s = Math.sqrt(variance);
   const sa = Math.sqrt(commonVariance);
   const se = Math.sqrt((1 - c) * variance);
-  // a grid with sa·h_a = PAIR_STEP/k, so ln t + sa·a falls on one lattice of spacing PAIR_STEP/k
-  const k = Math.ceil(PAIR_STEP / Math.min(PAIR_STEP, 0.25 * sa));
-  const spacing = PAIR_STEP / k;
-  const ha = spacing / sa;
-  const na = 2 * Math.ceil(Z_RANGE / ha) + 1;
-  const wa = normalisedGaussianWeights(na, ha);
-  const low = -40 - Math.log(C) - variance;
-  const steps = Math.ceil((10 * s + 45 + Math.log(C) + variance) / PAIR_STEP);
-  const latticeLength = steps * k + na;
-  const base = low - ((na - 1) / 2) * spacing;
+  // ln t and ln u on steps of PAIR_STEP, the common part a on a grid with sa·h_a = PAIR_STEP/k (one lattice)
+  const { k, spacing, n: na, weights: wa, steps, latticeLength, base } = logLattice(PAIR_STEP, Math.min(PAIR_STEP, 0.25 * sa), sa, variance, C);
   // one-class transforms of the ε part on the lattice τ = e^(base + j·spacing): 1 − E[exp(−τ e^(se·ε))] and
   // E[τ e^(se·ε)·exp(−τ e^(se·ε))]
   const he = se > 0 ? Math.min(0.25, 0.3 / se) : 1;
@@ -219,6 +192,22 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   if (pairCache.size > 4096) pairCache.clear();
   pairCache.set(key, result);
   return result;
+}
+
+/**
+ * The shared grids of both quadratures: ln t from `low` in `steps` steps of `step`, and a Gaussian variable x (of
+ * scale `scale` in the exponent) on n points of step h with scale·h = step/k ≤ `target`, so that ln t + scale·x lies
+ * on one lattice of `latticeLength` points base + j·spacing. Below `low` every integrand is under e^(−37) (small-t
+ * forms t·C·e^(s²/2) and t²·e^(2s²)); above low + steps·step = 10s + 5 the transforms ≈ Φ(−ln t/s) have vanished.
+ */
+function logLattice(step: number, target: number, scale: number, variance: number, C: number) {
+  const k = Math.ceil(step / target);
+  const spacing = step / k;
+  const h = spacing / scale;
+  const n = 2 * Math.ceil(Z_RANGE / h) + 1;
+  const low = -40 - Math.log(C) - variance;
+  const steps = Math.ceil((10 * Math.sqrt(variance) + 45 + Math.log(C) + variance) / step);
+  return { k, spacing, n, weights: normalisedGaussianWeights(n, h), low, steps, latticeLength: steps * k + n, base: low - ((n - 1) / 2) * spacing };
 }
 
 /** Trapezoid weights of N(0, 1) on n points of step h centred on 0, normalised to sum to 1. */
