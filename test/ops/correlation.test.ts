@@ -106,12 +106,17 @@ describe("average-pool copies its gradient: fully correlated within a window", (
   });
 });
 
-describe("batch norm's gradient sums to zero over batch × pixels (Ioffe & Szegedy 2015, backward pass)", () => {
+/** A batch norm over 6×6 pixels followed by a ReLU, its forward run on an input of second moment 2. */
+function batchNormCase(input: Signal): { layer: GraphLayer; ctx: OpContext; forward: ReturnType<typeof normRule.forward> } {
   const spec = makeSpec([conv("c", 4), norm("bn", "batch-norm"), act("r"), flatten("f"), dense("out", 3)], { input: image(2, 6, 6), loss: crossEntropy(3) });
   const layer = layerOf(spec, "bn");
+  const ctx = context(8);
+  return { layer, ctx, forward: normRule.forward(ctx, layer, input, {}) };
+}
+
+describe("batch norm's gradient sums to zero over batch × pixels (Ioffe & Szegedy 2015, backward pass)", () => {
   test("the input gradient's sample and position correlations cancel in the channel sum", () => {
-    const ctx = context(8);
-    const forward = normRule.forward(ctx, layer, { ...signal(2, 0.2), mean: 0.5, shared: 0.3 }, {});
+    const { layer, ctx, forward } = batchNormCase({ ...signal(2, 0.2), mean: 0.5, shared: 0.3 });
     const back = normRule.backward(ctx, layer, forward.stash, { q: 1, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: 0.1, positionCorrelation: 0.6 }, {});
     const input = back.input as Gradient;
     expect(input.q).toBeGreaterThan(0);
@@ -120,11 +125,8 @@ describe("batch norm's gradient sums to zero over batch × pixels (Ioffe & Szege
 });
 
 describe("a norm's gain gradient when a ReLU gates the gradient right after it", () => {
-  const spec = makeSpec([conv("c", 4), norm("bn", "batch-norm"), act("r"), flatten("f"), dense("out", 3)], { input: image(2, 6, 6), loss: crossEntropy(3) });
-  const layer = layerOf(spec, "bn");
   test("x̂·relu'(x̂)·b = relu(x̂)·b: pixels with a shared b (an average-pool's copy) share E[relu(u)relu(v)] = q/2π at c = 0 (Cho & Saul 2009)", () => {
-    const ctx = context(8);
-    const forward = normRule.forward(ctx, layer, { ...signal(2, 0), mean: 0, shared: 0 }, {});
+    const { layer, ctx, forward } = batchNormCase(signal(2, 0));
     const gated: Gradient = { q: 0.5, zeroFraction: 0.5, shape: "gaussian", logVar: 0, shared: 0, positionCorrelation: 0.5, reluGated: { sample: 0, position: 1 } };
     const gain = normRule.backward(ctx, layer, forward.stash, gated, {}).weightGradients.find((w) => w.weight === "gain");
     const ns = forward.stash.normalisedSecond;
