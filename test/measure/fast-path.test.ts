@@ -224,3 +224,49 @@ describe("binary32 counting pass equals per-element rounding at every class boun
     expectMatchesReference(values, SATURATING, [16384, 13627]);
   });
 });
+
+describe("the WebAssembly counting pass: counters held by one accumulator at a time, chunks cut anywhere in a run", () => {
+  it("fast-check: two accumulators fed in turn (each takes the counters from the other) match the reference", () => {
+    fc.assert(
+      fc.property(
+        fc.array(element, { minLength: 1, maxLength: 600, size: "max" }),
+        fc.array(element, { minLength: 1, maxLength: 600, size: "max" }),
+        fc.array(fc.integer({ min: 1, max: 300 }), { minLength: 1, maxLength: 4 }),
+        fc.constantFrom(TARGETS, SATURATING),
+        (first, second, chunks, targets) => {
+          const arrays = [Float32Array.from(first), Float32Array.from(second)];
+          // the second uses another target list, so the counters at rest differ between the two
+          const plans = [bucketPlan(32, targets), bucketPlan(32, FLUSHING)];
+          const accumulators = plans.map((plan) => new TensorAccumulator(plan));
+          const at = [0, 0];
+          for (let c = 0; at[0]! < arrays[0]!.length || at[1]! < arrays[1]!.length; c++) {
+            for (const k of [0, 1]) {
+              const length = chunks[(c + k) % chunks.length]!;
+              accumulators[k]!.add(arrays[k]!.subarray(at[k], at[k]! + length));
+              at[k] = Math.min(arrays[k]!.length, at[k]! + length);
+            }
+          }
+          // an accumulator tallied while the other holds the counters, then one started afresh after both
+          const tallies = accumulators.map((a) => a.tally());
+          [targets, FLUSHING].forEach((list, k) => {
+            list.forEach((target, t) => expect(tallies[k]!.casts[t]).toEqual(reference(target, arrays[k]!)));
+            const fresh = measure(arrays[k]!, list, [arrays[k]!.length]).tally;
+            expect([tallies[k]!.zeros, tallies[k]!.nans, tallies[k]!.binades]).toEqual([fresh.zeros, fresh.nans, fresh.binades]);
+          });
+        },
+      ),
+      { numRuns: 40, endOnFailure: true },
+    );
+  });
+
+  it("rows longer than a chunk, and a vector: chunks starting inside a run and running past its end", () => {
+    const values = new Float32Array(6000);
+    for (let i = 0; i < values.length; i++) values[i] = Math.fround(Math.cos(i * 0.37) * 2 ** ((i % 40) - 20));
+    edges.forEach((x, k) => (values[(k * 131 + 7) % values.length] = x));
+    values[2999] = 70000;
+    for (const columns of [1500, 2000, 6000]) {
+      expectMatchesReference(values, TARGETS, [1000, 777, 1999, 3], columns);
+      expectMatchesReference(values, FLUSHING, [4001, 5], columns);
+    }
+  });
+});
