@@ -20,8 +20,9 @@
  * path, found by the sign of the value just written instead of a second table; the step's address is written to the
  * flagged list every time and the list's end moves on only when a counter went negative, so there is no branch.
  *
- * The counters live in the module's memory, where one accumulator at a time holds them (takeCounters); chunks are
- * copied in (at most MAX_PASS elements a pass) and the results read back.
+ * The counters live in the module's memory, where one accumulator at a time holds them (takeCounters); chunks read
+ * into a buffer lent from that memory (lendBuffer) are counted where they lie, others are copied in first (at most
+ * MAX_PASS elements a pass), and the results are read back.
  */
 import { CodeBuilder, F64, I32, instantiate, op, PAGE_BYTES, V128, type WasmFunction } from "../numeric/wasm.js";
 import type { ChannelSums } from "./channels.js";
@@ -51,7 +52,12 @@ const RUNS_AT = RESULTS_AT + 64;
 const VALUES_AT = 1 << 20;
 const FLAGGED_AT = VALUES_AT + 4 * MAX_PASS;
 const FAST_AT = FLAGGED_AT + 4 * MAX_PASS;
-const MEMORY_BYTES = FAST_AT + 8 * MAX_PASS;
+/** buffers lent to file readers (see {@link lendBuffer}): two per file read at the same time */
+const LENT_BUFFERS = 4;
+/** bytes of a lent buffer */
+export const LENT_BUFFER_BYTES = 2 << 20;
+const LENT_AT = FAST_AT + 8 * MAX_PASS;
+const MEMORY_BYTES = LENT_AT + LENT_BUFFERS * LENT_BUFFER_BYTES;
 // a pass of MAX_PASS elements in runs of MIN_FUSED_RUN has at most this many runs (partial ones at both ends)
 if (RUNS_AT + 16 * (MAX_PASS / MIN_FUSED_RUN + 2) > VALUES_AT) throw new Error("fast32: run records overlap the chunk");
 
@@ -168,6 +174,9 @@ function countFunction(channels: boolean): WasmFunction {
 type CountFunction = (values: number, n: number, flaggedAt: number, fastBase: number, runLength: number, fast: number) => void;
 
 interface Kernel {
+  buffer: ArrayBuffer;
+  /** indices of the lent buffers not lent now */
+  free: number[];
   count: CountFunction;
   countChannels: CountFunction;
   bytes: Uint8Array;
@@ -187,6 +196,8 @@ function instantiateKernel(): Kernel {
   // the memory never grows, so these views stay valid
   const buffer = memory.buffer;
   return {
+    buffer,
+    free: Array.from({ length: LENT_BUFFERS }, (_, i) => i),
     count: exports.count as CountFunction,
     countChannels: exports.countChannels as CountFunction,
     bytes: new Uint8Array(buffer),
@@ -196,6 +207,24 @@ function instantiateKernel(): Kernel {
     owner: null,
     resting: null,
   };
+}
+
+/**
+ * A buffer of LENT_BUFFER_BYTES inside the counting kernel's memory, or null when all are lent: binary32 values read
+ * into it are counted without a copy. Give it back with {@link returnBuffer} once nothing reads into it any more.
+ */
+export function lendBuffer(): Uint8Array | null {
+  const k = (kernel ??= instantiateKernel());
+  const slot = k.free.pop();
+  return slot === undefined ? null : new Uint8Array(k.buffer, LENT_AT + slot * LENT_BUFFER_BYTES, LENT_BUFFER_BYTES);
+}
+
+/** Give back a buffer from {@link lendBuffer}. */
+export function returnBuffer(lent: Uint8Array): void {
+  const k = kernel!;
+  const slot = (lent.byteOffset - LENT_AT) / LENT_BUFFER_BYTES;
+  if (lent.buffer !== k.buffer || !Number.isInteger(slot) || k.free.includes(slot)) throw new RangeError("returnBuffer: not a lent buffer");
+  k.free.push(slot);
 }
 
 /** A holder of bucket counters: the kernel's own while it is theirs, a copy of them when another took them. */
@@ -247,7 +276,9 @@ export function countPass(values: Float32Array, flagged: Int32Array, channels?: 
   if (n > MAX_PASS) throw new RangeError(`a counting pass takes at most ${MAX_PASS} values; got ${n}`);
   runResult.set([0, 0x7fffffff, 0]);
   if (n === 0) return 0;
-  k.bytes.set(new Uint8Array(values.buffer, values.byteOffset, 4 * n), VALUES_AT);
+  // values in the kernel's memory (a lent buffer) are counted where they lie
+  const at = values.buffer === k.buffer ? values.byteOffset : VALUES_AT;
+  if (at === VALUES_AT) k.bytes.set(new Uint8Array(values.buffer, values.byteOffset, 4 * n), VALUES_AT);
   let total = 0;
   let max = 0;
   let min = 0x7fffffff;
@@ -259,7 +290,7 @@ export function countPass(values: Float32Array, flagged: Int32Array, channels?: 
     flagEnd = k.i32[RESULTS_AT / 4 + 4]!;
   };
   if (!channels) {
-    k.count(VALUES_AT, n, FLAGGED_AT, 0, n, 0);
+    k.count(at, n, FLAGGED_AT, 0, n, 0);
     collect();
   } else {
     const { fastSum, slowSum, slowMaxSquare } = channels;
@@ -273,7 +304,7 @@ export function countPass(values: Float32Array, flagged: Int32Array, channels?: 
       const length = fast > 0 ? Math.min(n - done, runLength - fast) : n - done;
       const span = Math.min(length, runLength - fast);
       k.f64.set(fastSum.subarray(fast, fast + span), FAST_AT / 8);
-      k.countChannels(VALUES_AT + 4 * done, length, flagEnd, (FAST_AT - 8 * fast) | 0, Math.min(runLength, fast + length), fast);
+      k.countChannels(at + 4 * done, length, flagEnd, (FAST_AT - 8 * fast) | 0, Math.min(runLength, fast + length), fast);
       fastSum.set(k.f64.subarray(FAST_AT / 8, FAST_AT / 8 + span), fast);
       collect();
       const runs = k.i32[RESULTS_AT / 4 + 5]!;
@@ -288,7 +319,7 @@ export function countPass(values: Float32Array, flagged: Int32Array, channels?: 
     }
   }
   const nFlagged = (flagEnd - FLAGGED_AT) >> 2;
-  for (let i = 0; i < nFlagged; i++) flagged[i] = (k.i32[FLAGGED_AT / 4 + i]! - VALUES_AT) >> 2;
+  for (let i = 0; i < nFlagged; i++) flagged[i] = (k.i32[FLAGGED_AT / 4 + i]! - at) >> 2;
   runResult[0] = max;
   runResult[1] = min;
   runResult[2] = nFlagged;

@@ -6,6 +6,7 @@
 import { open, type FileHandle } from "node:fs/promises";
 import { basename } from "node:path";
 import { chunkDecoder, type ChunkDecoder } from "./decode.js";
+import { LENT_BUFFER_BYTES, lendBuffer, returnBuffer } from "./fast32.js";
 import { NPY_MAGIC, parseNpyHeader, parseNpyPrefix } from "./npy.js";
 import { parseSafetensorsHeader, parseSafetensorsPrefix } from "./safetensors.js";
 import { DTYPE_BYTES, type ScanIssue, type TensorFileLayout, type TensorLayout } from "./types.js";
@@ -106,8 +107,34 @@ export async function streamTensors(file: OpenTensorFile, sink: TensorSink, onPr
   const tensors = file.layout.tensors;
   if (tensors.length === 0) return issues;
   const widest = Math.max(...tensors.map((t) => DTYPE_BYTES[t.dtype]));
-  // allocated here, not from Node's pool, so each buffer starts at offset 0 of its own ArrayBuffer and views stay aligned
-  const buffers = [Buffer.allocUnsafeSlow(CHUNK_ELEMENTS * widest), Buffer.allocUnsafeSlow(CHUNK_ELEMENTS * widest)];
+  // buffers lent from the binary32 counting kernel's memory, so its passes need no copy of the chunk; else allocated
+  // here, not from Node's pool, so each buffer starts at offset 0 of its own ArrayBuffer and views stay aligned
+  const lent: Uint8Array[] = [];
+  const buffers = [0, 1].map(() => {
+    const loan = CHUNK_ELEMENTS * widest <= LENT_BUFFER_BYTES ? lendBuffer() : null;
+    if (!loan) return Buffer.allocUnsafeSlow(CHUNK_ELEMENTS * widest);
+    lent.push(loan);
+    return Buffer.from(loan.buffer, loan.byteOffset, CHUNK_ELEMENTS * widest);
+  });
+  let pending: Promise<number> | undefined;
+  try {
+    return await streamChunks(file, sink, buffers, (p) => (pending = p), onProgress);
+  } finally {
+    // a read still in flight (the sink threw) must end before its buffer is lent again
+    await pending?.catch(() => 0);
+    lent.forEach(returnBuffer);
+  }
+}
+
+async function streamChunks(
+  file: OpenTensorFile,
+  sink: TensorSink,
+  buffers: Buffer[],
+  reading: (read: Promise<number>) => void,
+  onProgress?: ProgressCallback,
+): Promise<ScanIssue[]> {
+  const issues: ScanIssue[] = [];
+  const tensors = file.layout.tensors;
   const decoders = new Map<string, ChunkDecoder>();
   const decoderFor = (tensor: TensorLayout): ChunkDecoder => {
     const key = `${tensor.dtype}/${tensor.littleEndian}`;
@@ -119,7 +146,11 @@ export async function streamTensors(file: OpenTensorFile, sink: TensorSink, onPr
   const plans = planChunks(tensors);
   let done = 0;
   let failed: TensorLayout | undefined;
-  const read = (plan: ChunkPlan, buffer: Buffer) => readInto(file.handle, buffer, plan.bytes, plan.position);
+  const read = (plan: ChunkPlan, buffer: Buffer) => {
+    const p = readInto(file.handle, buffer, plan.bytes, plan.position);
+    reading(p);
+    return p;
+  };
   let pending = plans.length > 0 ? read(plans[0]!, buffers[0]!) : undefined;
   for (let i = 0; i < plans.length; i++) {
     const plan = plans[i]!;

@@ -71,6 +71,21 @@ describe("scanFile", () => {
     );
   });
 
+  it("files scanned at the same time (more than the counting kernel lends buffers for) count each its own values", async () => {
+    // three chunks and a bit per file, different values in each, so a chunk read into another scan's buffer shows
+    const length = 788 * 1000;
+    const lists = [0, 1, 2].map((k) => Array.from({ length }, (_, i) => Math.fround(Math.sin(i * (k + 1) * 0.001) * 2 ** ((i * (k + 3)) % 41 - 30))));
+    lists.forEach((list, k) => (list[k * 300000 + 17] = 70000));
+    const paths = lists.map((list, k) =>
+      files.write(`concurrent-${k}.safetensors`, safetensorsBytes([{ name: "w", dtype: "F32", shape: [length / 1000, 1000], data: encode("F32", list) }])),
+    );
+    const scans = await Promise.all(paths.map((path) => scanFile(path, { targets: [TARGETS[0]!] })));
+    scans.forEach((scan, k) => {
+      const { flushed, subnormal, saturated, overflowed } = scan.tensors[0]!.casts[0]!;
+      expect({ flushed, subnormal, saturated, overflowed }).toEqual(expected("binary16", lists[k]!));
+    });
+  });
+
   it("e4m3 codes from the OCP 8-bit specification table, judged in binary16 and e4m3", async () => {
     // 0x7E = 448, 0x7F = NaN, 0x01 = 2^-9, 0x08 = 2^-6 (smallest normal), 0x00 = 0
     const path = files.write("codes.safetensors", safetensorsBytes([{ name: "q", dtype: "F8_E4M3", shape: [5], data: encode("F8_E4M3", [0x7e, 0x7f, 0x01, 0x08, 0x00]) }]));
