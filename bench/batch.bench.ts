@@ -9,7 +9,7 @@
  * the pipeline's own ceiling in specs per second, whatever check() costs.
  */
 import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
-import { availableParallelism, tmpdir } from "node:os";
+import { availableParallelism, loadavg, tmpdir } from "node:os";
 import { join } from "node:path";
 import { Worker } from "node:worker_threads";
 import { afterAll, beforeAll, bench, describe } from "vitest";
@@ -44,11 +44,16 @@ const inputs: BatchInput[] = writeSpecs(dir, COUNT, (i) => generatedSpec(i, exam
   (path): BatchInput => ({ kind: "file", path, argument: path }),
 );
 const seconds: Record<string, number[]> = {};
+// processor time of the whole process (main thread and workers): steadier than wall time on shared cores
+const cpuSeconds: Record<string, number[]> = {};
 
 async function timedBatch(label: string, workers: number, workerUrl = WORKER): Promise<void> {
   const started = performance.now();
+  const cpu = process.cpuUsage();
   const rows = await runBatch(inputs, [], { workerUrl, workers });
   const elapsed = (performance.now() - started) / 1000;
+  const used = process.cpuUsage(cpu);
+  (cpuSeconds[label] ??= []).push((used.user + used.system) / 1e6);
   const failed = rows.filter((row) => row.status === "error");
   if (rows.length !== COUNT || failed.length > 0) {
     throw new Error(`${label}: ${failed.length} of ${rows.length} rows failed, e.g. ${JSON.stringify(failed[0])}`);
@@ -74,14 +79,18 @@ async function parallelCapacity(): Promise<number> {
 }
 
 let capacityBefore = NaN;
+let loadBefore = "";
+// the one-minute load average: other sessions share these cores, and the figures move with it
+const load = (): string => loadavg()[0]!.toFixed(1);
 beforeAll(async () => {
+  loadBefore = load();
   capacityBefore = await parallelCapacity();
 });
 
 const POOL = `pool of ${availableParallelism()} workers`;
 const NO_CHECK_POOL = `${POOL}, check replaced by nothing`;
 const NO_CHECK_ONE = "one worker, check replaced by nothing";
-// one timed pass each: a pass takes tens of seconds, so a second would not sharpen the figure much
+// as few timed passes as the runner allows (it makes three): the output counts them
 const options = { time: 0, iterations: 1, warmupIterations: 0, warmupTime: 0 };
 
 describe(`check ${COUNT} generated specs`, () => {
@@ -97,17 +106,23 @@ afterAll(async () => {
     const times = seconds[label] ?? [];
     return { best: COUNT / Math.min(...times), mean: COUNT / (times.reduce((a, b) => a + b, 0) / times.length) };
   };
+  const cpuMs = (label: string): string => {
+    const times = cpuSeconds[label] ?? [];
+    return ((1000 * times.reduce((a, b) => a + b, 0)) / times.length / COUNT).toFixed(2);
+  };
   const line = (pool: string, one: string): string => {
     const [p, o] = [rates(pool), rates(one)];
     return (
       `${pool} ${p.mean.toFixed(1)}; ${p.best.toFixed(1)} specs/s over ${seconds[pool]?.length ?? 0} passes, ${one} ${o.mean.toFixed(1)}; ${o.best.toFixed(1)} specs/s over ${seconds[one]?.length ?? 0}, ` +
-      `speed-up ${(p.mean / o.mean).toFixed(2)}x; ${(p.best / o.best).toFixed(2)}x`
+      `speed-up ${(p.mean / o.mean).toFixed(2)}x; ${(p.best / o.best).toFixed(2)}x; ` +
+      `processor ms per spec (all threads) ${cpuMs(pool)} and ${cpuMs(one)}`
     );
   };
   console.log(
     `\nbatch throughput (mean; best):\n  ${line(POOL, "one worker")} (goal: 500 specs/s and 1.6x)\n` +
       `  measurement only: ${line(NO_CHECK_POOL, NO_CHECK_ONE)}\n` +
-      `  parallel CPU available (two spinning threads against one): ${capacityBefore.toFixed(2)}x before, ${capacityAfter.toFixed(2)}x after\n`,
+      `  parallel CPU available (two spinning threads against one): ${capacityBefore.toFixed(2)}x before, ${capacityAfter.toFixed(2)}x after; ` +
+      `load average ${loadBefore} before, ${load()} after\n`,
   );
   rmSync(dir, { recursive: true, force: true });
 });
