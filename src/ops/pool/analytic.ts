@@ -1,7 +1,6 @@
 /**
  * Average and max pooling over windows of k elements (size² pixels of an image, or `size` positions).
- * Average: the mean passes, the fluctuation shrinks by 1/k for independent elements (neighbouring elements are
- * often correlated, so this is a lower estimate). Max: order statistics of k independent Gaussian elements
+ * Average: the part the window's elements share (their position correlation) passes, the rest shrinks by 1/k. Max: order statistics of k independent Gaussian elements
  * (Gumbel 1958 for the large-k limit; computed here by quadrature for the exact k).
  * Backward: average spreads each gradient over its k inputs (÷k²), the same value to every pixel of a window, so
  * the input gradient is fully correlated within windows; max routes it to the arg-max only, so the input gradient is
@@ -13,7 +12,7 @@ import type { PoolLayer } from "../../spec/types.js";
 import { factor, fmt, positionCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
-const AVERAGE_SOURCE = "mean of k independent elements (variance ÷ k; approximation)";
+const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
 const MAX_SOURCE = "maximum of k independent Gaussian elements (order statistics, computed by quadrature)";
 
 /** Window length in elements. */
