@@ -22,7 +22,7 @@ declare const WebAssembly: {
 export const PAGE_BYTES = 65536;
 
 /** Unsigned LEB128 (§5.2.2). */
-export function unsignedLeb(n: number): number[] {
+function unsignedLeb(n: number): number[] {
   const out: number[] = [];
   do {
     let byte = n & 0x7f;
@@ -34,7 +34,7 @@ export function unsignedLeb(n: number): number[] {
 }
 
 /** Signed LEB128 of a 32-bit integer (§5.2.2). */
-export function signedLeb(n: number): number[] {
+function signedLeb(n: number): number[] {
   const out: number[] = [];
   for (;;) {
     const byte = n & 0x7f;
@@ -54,9 +54,11 @@ const simd = (opcode: number, ...immediates: number[]): number[] => [0xfd, ...un
 /** memarg (§5.4.6): log2 of the alignment (a hint; unaligned accesses are allowed), then the static offset */
 const memarg = (log2Align: number, offset: number): number[] => [log2Align, ...unsignedLeb(offset)];
 
-/** value types (§5.3.1) */
+/** value type i32 (§5.3.1) */
 export const I32 = 0x7f;
+/** value type f64 (§5.3.1) */
 export const F64 = 0x7c;
+/** value type v128 (§5.3.1) */
 export const V128 = 0x7b;
 
 /** Named instructions (§5.4), each as its bytes; those with immediates are functions of them. */
