@@ -4,17 +4,9 @@
  * re-exported by src/risk/index.ts.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, overDrawsBounds, overDrawsInnerBounds } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, nonzeroElements, overDrawsBounds, overDrawsInnerBounds } from "./laws.js";
 import { anyOf } from "./_math.js";
-import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
-
-// the same tests as profile.ts makes before integrating
-function isEmpty(profile: MagnitudeProfile): boolean {
-  return !(profile.rms > 0) || !(nonzeroElements(profile) > 0);
-}
-function isConstantLike(profile: MagnitudeProfile): boolean {
-  return profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0));
-}
+import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
 
 /**
  * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the extreme draws and at ±4

@@ -113,6 +113,21 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
+/** Number of nonzero elements of one step. */
+export function nonzeroElements(profile: MagnitudeProfile): number {
+  return Math.max(0, profile.elements * (1 - profile.zeroFraction));
+}
+
+/** Whether a profile has no nonzero element to judge (every risk number is then 0). */
+export function isEmpty(profile: MagnitudeProfile): boolean {
+  return !(profile.rms > 0) || !(nonzeroElements(profile) > 0);
+}
+
+/** Every nonzero element equals the drawn scale: constant shape, or a log-normal without element spread. */
+export function isConstantLike(profile: MagnitudeProfile): boolean {
+  return profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0));
+}
+
 /**
  * The element law of a profile's nonzero part. A `bound` given with any shape caps the magnitudes there (the
  * engine marks probabilities and softmax gradients with the largest value they can take).

@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, mixtureCrossing, overDraws } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, nonzeroElements, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, mixtureCrossing, overDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -44,14 +44,7 @@ export interface ProfileRisk {
   footroom: number | null;
 }
 
-/** Number of nonzero elements of one step. */
-export function nonzeroElements(profile: MagnitudeProfile): number {
-  return Math.max(0, profile.elements * (1 - profile.zeroFraction));
-}
-
-function isEmpty(profile: MagnitudeProfile): boolean {
-  return !(profile.rms > 0) || !(nonzeroElements(profile) > 0);
-}
+export { nonzeroElements } from "./laws.js";
 
 /**
  * Probability that at least one nonzero element reaches t in one step, over draws of the scale:
@@ -66,11 +59,6 @@ export function probabilityAnyAbove(profile: MagnitudeProfile, t: number, positi
   // constant magnitudes: every element equals the drawn scale, so the event is log2 r ≥ log2 t (closed form)
   if (isConstantLike(profile)) return drawReaches(profile, t);
   return overDraws(profile.rms, profile.log2Spread, (r) => anyOf(share * law.above(r, t), n));
-}
-
-// Every nonzero element equals the drawn scale: constant shape, or a log-normal without element spread.
-function isConstantLike(profile: MagnitudeProfile): boolean {
-  return profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0));
 }
 
 // P(log2 r ≥ log2 t) for a constant-like profile: the draw's z must pass (log2 t − log2 rms)/spread

@@ -15,7 +15,7 @@
  * All randomness comes from one seeded source per draw (createRandom of src/numeric), never from a global one.
  */
 import { getFormat, roundArrayInPlace, roundTo, type Format, type RoundOptions } from "../formats/index.js";
-import { buildGraph, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
+import { batchShape, buildGraph, sampleElements, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
 import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
@@ -129,28 +129,6 @@ function allLayers(layers: readonly GraphLayer[], out: GraphLayer[] = []): Graph
   return out;
 }
 
-function batchShape(batch: number, shape: GraphLayer["output"]): number[] {
-  switch (shape.layout) {
-    case "tokens":
-      return [batch, shape.positions];
-    case "features":
-      return shape.positions === 1 ? [batch, shape.features] : [batch, shape.positions, shape.features];
-    case "image":
-      return [batch, shape.channels, shape.height, shape.width];
-  }
-}
-
-function elementsOf(shape: GraphLayer["output"]): number {
-  switch (shape.layout) {
-    case "tokens":
-      return shape.positions;
-    case "features":
-      return shape.positions * shape.features;
-    case "image":
-      return shape.channels * shape.height * shape.width;
-  }
-}
-
 /** Draw a weight from its initialisation. Orthogonal initialisations are drawn as Gaussians of the same variance. */
 function initialWeight(w: GraphWeight, random: RandomSource): Float64Array {
   const data = new Float64Array(w.elements);
@@ -197,7 +175,7 @@ function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
 /** Random inputs: Gaussian features or pixels at the spec's input scale, or token ids uniform over the vocabulary. */
 function makeInput(setup: Setup, random: RandomSource): Float64Array {
   const { graph, spec } = setup;
-  const n = graph.batch * elementsOf(graph.input);
+  const n = graph.batch * sampleElements(graph.input);
   const x = new Float64Array(n);
   if (spec.input.kind === "tokens") {
     const first = graph.layers[0];

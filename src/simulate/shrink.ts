@@ -8,7 +8,7 @@
  * multipliers, norms) is left alone. The shrunk spec is a network in its own right: predictions for it come from
  * the same analytic rules, so comparing them with the simulation still tests the model.
  */
-import { buildGraph, forwardOrder, type Graph, type GraphLayer } from "../graph/index.js";
+import { buildGraph, forwardOrder, sampleElements, type Graph, type GraphLayer } from "../graph/index.js";
 import type { InitSpec, LayerSpec, NetworkSpec } from "../spec/types.js";
 import { SimulationTooLarge, type ShrinkFactors, type ShrinkReport } from "./types.js";
 
@@ -184,7 +184,7 @@ export function estimateMemory(graph: Graph, steps: number): number {
   let weights = 0;
   let largest = 0;
   for (const layer of forwardOrder(graph)) {
-    const out = graph.batch * elementsOf(layer.output);
+    const out = graph.batch * sampleElements(layer.output);
     activations += 3 * out + innerElements(layer, graph.batch);
     largest = Math.max(largest, out);
     for (const w of layer.weights) weights += w.elements;
@@ -192,17 +192,6 @@ export function estimateMemory(graph: Graph, steps: number): number {
   // weights, their gradient, the gradient sum and one spare; with steps also master weights and two moments
   const weightCopies = steps > 0 ? 7 : 4;
   return 8 * 1.25 * (activations + weightCopies * weights + 4 * largest);
-}
-
-function elementsOf(shape: GraphLayer["output"]): number {
-  switch (shape.layout) {
-    case "tokens":
-      return shape.positions;
-    case "features":
-      return shape.positions * shape.features;
-    case "image":
-      return shape.channels * shape.height * shape.width;
-  }
 }
 
 /** The memory a spec needs after shrinking by `factors`, or Infinity when the shrunk spec does not build. */
