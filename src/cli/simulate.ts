@@ -1,4 +1,3 @@
-import { rename, writeFile } from "node:fs/promises";
 import { getFormat } from "../formats/index.js";
 import type { MagnitudeProfile } from "../magnitude/index.js";
 import { predict } from "../magnitude/index.js";
@@ -18,6 +17,7 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import type { RegisterCommand } from "./commands.js";
+import { writeFileAtomic } from "./report.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 interface SimulateFlags {
@@ -92,14 +92,7 @@ export const register: RegisterCommand = (program) => {
         throw error;
       }
       if (flags.html !== undefined) {
-        // written whole or not at all: a temporary file renamed into place
-        const temporary = `${flags.html}.${process.pid}.tmp`;
-        try {
-          await writeFile(temporary, renderSimulationHtml(report));
-          await rename(temporary, flags.html);
-        } catch (error) {
-          throw new UserError(`--html ${flags.html}: cannot write the page (${error instanceof Error ? error.message : String(error)})`);
-        }
+        writeFileAtomic(flags.html, renderSimulationHtml(report));
       }
       process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
       raiseExitCode(simulationExitCode(report.result));
