@@ -67,6 +67,9 @@ const SLOT: Record<TensorRole, PlanSlot> = {
 
 const NORMS = new Set(["layer-norm", "rms-norm", "batch-norm"]);
 
+/** The end pass reports profiles only: its records carry no shape (the start pass's is reported). */
+const NO_SHAPE: number[] = [];
+
 function chain(node: LedgerNode | null, layer: string, factors: readonly Factor[], build: boolean): LedgerNode | null {
   if (!build) return null;
   let current = node;
@@ -108,8 +111,8 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
 class Phase {
   readonly tensors: TensorRecord[] = [];
   readonly hazards: Omit<HazardSite, "end">[] = [];
-  readonly stash = new Map<number, unknown>();
-  readonly forwardOut = new Map<number, Signal>();
+  /** each layer's stash by layer index */
+  readonly stash: unknown[] = [];
   readonly ctx: OpContext;
   private readonly endVariance = new Map<GraphWeight, number>();
 
@@ -141,6 +144,16 @@ class Phase {
         this.endVariance.set(w, (Math.max(growth - 1, 0) * mainRms) ** 2);
       }
     }
+  }
+
+  #sumDetail: string | undefined;
+
+  /** The gradient-sum hazard's words after the tensor id (the same for every weight of a spec). */
+  private sumDetail(): string {
+    const training = this.spec.training;
+    const W = training.workers;
+    this.#sumDetail ??= `: ${training.accumulationSteps} accumulation step(s) × ${W} worker(s) summed${training.workerGradients === "average" ? `, then divided by ${W}` : ""}`;
+    return this.#sumDetail;
   }
 
   emit(record: TensorRecord): void {
@@ -180,11 +193,11 @@ class Phase {
           w.elements,
         );
       }
-      const rule = w.init === undefined ? (w.distribution === "constant" ? "constant gain" : "zero-initialised") : `${w.init.kind} initialisation`;
-      const node =
-        this.build && profile.rms > 0
-          ? chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule: `${rule}: var = ${variance.toPrecision(4)}`, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true)
-          : null;
+      let node: LedgerNode | null = null;
+      if (this.build && profile.rms > 0) {
+        const rule = w.init === undefined ? (w.distribution === "constant" ? "constant gain" : "zero-initialised") : `${w.init.kind} initialisation`;
+        node = chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule: `${rule}: var = ${variance.toPrecision(4)}`, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true);
+      }
       this.emit({
         id: `${layer.name}/weight${w.name === "weight" ? "" : `:${w.name}`}`,
         layer: layer.name,
@@ -212,7 +225,7 @@ class Phase {
         branchResults = { branchOutput: inner.output, branchResets: inner.resets };
       }
       const result = rule.forward(this.ctx, layer, signal, branchResults);
-      this.stash.set(layer.index, result.stash);
+      this.stash[layer.index] = result.stash;
       this.weightRecords(layer);
       for (const inner of result.inner) {
         this.emit({
@@ -227,10 +240,9 @@ class Phase {
           ledger: chain(current, layer.name, inner.factors, this.build),
         });
       }
-      result.hazards.forEach((h, i) => this.hazard(layer, h, i));
+      for (let i = 0; i < result.hazards.length; i++) this.hazard(layer, result.hazards[i] as OpHazard, i);
       current = chain(current, layer.name, result.factors, this.build);
       signal = result.output;
-      this.forwardOut.set(layer.index, signal);
       if (NORMS.has(layer.family) || layer.family === "embedding" || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
       this.emit({
         id: this.build ? `${layer.name}/${result.role}` : "",
@@ -239,7 +251,7 @@ class Phase {
         family: layer.family,
         role: result.role,
         slot: "activations",
-        shape: batchShape(this.graph.batch, layer.output),
+        shape: this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
         profile: profileOf(signal, this.graph.batch * sampleElements(layer.output)),
         ledger: current,
       });
@@ -261,7 +273,7 @@ class Phase {
           family: layer.family,
           role: "activation-gradient",
           slot: "gradients",
-          shape: batchShape(this.graph.batch, layer.output),
+          shape: this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
           profile: profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
           ledger: current,
         });
@@ -275,7 +287,7 @@ class Phase {
         const branchGradient = this.backward(layer.branch, seed.gradient, chain(current, layer.name, [seed.factor], this.build), false);
         branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
       }
-      const result = rule.backward(this.ctx, layer, this.stash.get(layer.index), gradient, branchResults);
+      const result = rule.backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // only the rectifier right before a max-pool may use the arg-max position
       if (result.input !== undefined && layer.family !== "max-pool") delete result.input.windowMaximum;
       if (result.input !== undefined && layer.family !== "activation") delete result.input.reluGated;
@@ -318,10 +330,9 @@ class Phase {
     const summedQ = wg.q * A * W;
     const finalQ = averaged ? summedQ / (W * W) : summedQ;
     const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
-    const base = { q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian" as const, logVar: wg.logVar };
     // an element of the combined gradient is zero only when it is zero in every micro-batch, taken as independent (exact
     // for the rows an embedding leaves untouched; a lower bound for a ReLU unit, whose off-state persists across them)
-    const profile = profileOf({ ...base, q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W) }, weight.elements);
+    const profile = profileOf({ q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W), shape: "gaussian", logVar: wg.logVar }, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
     const id = this.build ? `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}` : "";
@@ -349,11 +360,11 @@ class Phase {
       const site: Omit<HazardSite, "end"> = {
         kind: "gradient-sum",
         layer: layer.name,
-        input: profileOf(base, weight.elements),
+        input: profileOf({ q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
         terms: A * W,
         guarded: false,
-        detail: !this.build ? "" : `${id}: ${A} accumulation step(s) × ${W} worker(s) summed${averaged ? `, then divided by ${W}` : ""}`,
-        output: profileOf({ ...base, q: summedQ }, weight.elements),
+        detail: !this.build ? "" : id + this.sumDetail(),
+        output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
       };
       this.hazards.push(site);
     }
@@ -554,12 +565,11 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
     const tensor: TensorPrediction = new PredictedTensor(a, b.profile);
     tensors.push(tensor);
   }
-  // both passes visit the same operations in the same order
-  const hazards: HazardSite[] = start.hazards.map((site, i) => {
+  // both passes visit the same operations in the same order; the start pass's sites are fresh objects, completed in place
+  const hazards = start.hazards as HazardSite[];
+  for (let i = 0; i < hazards.length; i++) {
     const other = end.hazards[i];
-    const full: HazardSite = { ...site };
-    if (other !== undefined) full.end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
-    return full;
-  });
+    if (other !== undefined) (hazards[i] as HazardSite).end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
+  }
   return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };
 }

@@ -93,7 +93,41 @@ export function crossMoments(
   return { value: a0 + a1 * c + rest * c * c, derivative: m.derivativeMean * m.derivativeMean + dRest * c * c };
 }
 
-const allBelowCache = new Map<string, number>();
+/** Memo of allBelowZero by n, then by c (number keys: no string to build per call). */
+const allBelowCache = new Map<number, Map<number, number>>();
+let allBelowCached = 0;
+
+const ALL_BELOW_LIMIT = 9;
+const ALL_BELOW_PANELS = 12;
+
+/**
+ * The fixed parts of allBelowZero's composite rule, made once: the abscissae x and weights w, w·φ(x) (the
+ * integrand's factor in s) and Φ(−x) (the factor in u). Each is the very expression the sum used, so results are
+ * unchanged bit for bit.
+ */
+let allBelowTable: { x: Float64Array; w: Float64Array; wPdf: Float64Array; cdfBelow: Float64Array } | undefined;
+
+function allBelowNodes(): NonNullable<typeof allBelowTable> {
+  if (allBelowTable !== undefined) return allBelowTable;
+  const rule = gaussLegendre(12);
+  const width = (2 * ALL_BELOW_LIMIT) / ALL_BELOW_PANELS;
+  const size = ALL_BELOW_PANELS * rule.nodes.length;
+  const table = { x: new Float64Array(size), w: new Float64Array(size), wPdf: new Float64Array(size), cdfBelow: new Float64Array(size) };
+  let k = 0;
+  for (let p = 0; p < ALL_BELOW_PANELS; p++) {
+    const mid = -ALL_BELOW_LIMIT + (p + 0.5) * width;
+    for (let i = 0; i < rule.nodes.length; i++, k++) {
+      const x = mid + 0.5 * width * (rule.nodes[i] as number);
+      const w = 0.5 * width * (rule.weights[i] as number);
+      table.x[k] = x;
+      table.w[k] = w;
+      table.wPdf[k] = w * normalPdf(x);
+      table.cdfBelow[k] = normalCdf(-x);
+    }
+  }
+  allBelowTable = table;
+  return table;
+}
 
 /**
  * P(u_1 ≤ 0, …, u_n ≤ 0) for n standard Gaussians with common pairwise correlation c ≥ 0: writing
@@ -107,26 +141,29 @@ export function allBelowZero(c: number, n: number): number {
   if (!(n >= 1)) return 1;
   if (!(c > 0)) return Math.pow(2, -n);
   if (c >= 1) return 0.5;
-  const key = `${c}|${n}`;
-  const hit = allBelowCache.get(key);
+  let byC = allBelowCache.get(n);
+  const hit = byC?.get(c);
   if (hit !== undefined) return hit;
   const r = Math.sqrt(c / (1 - c));
-  const rule = gaussLegendre(12);
-  const limit = 9;
-  const panels = 12;
-  const width = (2 * limit) / panels;
+  const { x, w, wPdf, cdfBelow } = allBelowNodes();
   // in u, below −9 every u_i is surely ≤ 0 and the density integrates to Φ(−9/r)
-  let sum = r > 1 ? normalCdf(-limit / r) : 0;
-  for (let p = 0; p < panels; p++) {
-    const mid = -limit + (p + 0.5) * width;
-    for (let i = 0; i < rule.nodes.length; i++) {
-      const x = mid + 0.5 * width * (rule.nodes[i] as number);
-      const w = 0.5 * width * (rule.weights[i] as number);
-      sum += r > 1 ? (w / r) * normalPdf(x / r) * Math.pow(normalCdf(-x), n) : w * normalPdf(x) * Math.pow(normalCdf(-r * x), n);
-    }
+  let sum = r > 1 ? normalCdf(-ALL_BELOW_LIMIT / r) : 0;
+  if (r > 1) {
+    for (let k = 0; k < x.length; k++) sum += ((w[k] as number) / r) * normalPdf((x[k] as number) / r) * Math.pow(cdfBelow[k] as number, n);
+  } else {
+    for (let k = 0; k < x.length; k++) sum += (wPdf[k] as number) * Math.pow(normalCdf(-r * (x[k] as number)), n);
   }
-  if (allBelowCache.size > 4096) allBelowCache.clear();
-  allBelowCache.set(key, sum);
+  if (allBelowCached > 4096) {
+    allBelowCache.clear();
+    allBelowCached = 0;
+    byC = undefined;
+  }
+  if (byC === undefined) {
+    byC = new Map();
+    allBelowCache.set(n, byC);
+  }
+  byC.set(c, sum);
+  allBelowCached++;
   return sum;
 }
 
