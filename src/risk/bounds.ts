@@ -4,8 +4,7 @@
  * re-exported by src/risk/index.ts.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, isConstantLike, isEmpty, nonzeroElements, overDrawsBounds, overDrawsInnerBounds } from "./laws.js";
-import { anyOf } from "./_math.js";
+import { isConstantLike, isEmpty, lawOverDrawsBounds } from "./laws.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
 
 /**
@@ -19,9 +18,8 @@ export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number
     const value = fractionBelow(profile, t);
     return [value, value];
   }
-  const law = elementLaw(profile);
   // shares are compared with tolerances of 1e-3 and more: the inner bounds decide most of them
-  return overDrawsInnerBounds(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+  return lawOverDrawsBounds(profile, "energy-below", t, true);
 }
 
 /** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
@@ -41,7 +39,5 @@ export function probabilityAnyAboveBounds(profile: MagnitudeProfile, t: number):
     const value = probabilityAnyAbove(profile, t);
     return [value, value];
   }
-  const law = elementLaw(profile);
-  const n = nonzeroElements(profile);
-  return overDrawsBounds(profile.rms, profile.log2Spread, (r) => anyOf(law.above(r, t), n));
+  return lawOverDrawsBounds(profile, "any-above", t, false);
 }

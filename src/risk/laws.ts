@@ -3,7 +3,7 @@
  * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { erf, erfc, normalCdf, normalPdf, normalSf, LN2 } from "./_math.js";
+import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, LN2 } from "./_math.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -211,24 +211,170 @@ const THREE_QUARTER_WEIGHTS = trapezoidWeights(THREE_QUARTER_STRIDE);
 const COARSE_AGREEMENT = 1e-10;
 const COARSE_END_SHARE = 1e-13;
 // The scale factors 2^(spread·z_i) of the rule's nodes per spread: the calls for one profile (several thresholds
-// of a tensor, a search over loss scales) share its spread, so each power is taken once. Bounded, so a
-// long-running batch worker does not grow without end.
-const FACTORS = new Map<number, Float64Array>();
-const FACTORS_LIMIT = 4096;
+// of a tensor, a search over loss scales) share its spread, so each power is taken once, and only for the nodes a
+// sum visits (0 marks a power not yet taken). A direct-mapped table on the spread's bits (no Map of doubles, no
+// bound to enforce: a collision replaces the older row).
+const FACTOR_SLOTS = 4096;
+const FACTOR_KEYS = new Float64Array(FACTOR_SLOTS).fill(NaN);
+const FACTOR_ROWS: Float64Array[] = [];
+const BITS = new Float64Array(1);
+const BITS_WORDS = new Uint32Array(BITS.buffer);
 function nodeFactors(log2Spread: number): Float64Array {
-  let factors = FACTORS.get(log2Spread);
-  if (factors === undefined) {
-    const { z } = DRAW_NODES;
-    factors = new Float64Array(z.length);
-    for (let i = 0; i < z.length; i++) factors[i] = 2 ** (log2Spread * (z[i] as number));
-    if (FACTORS.size >= FACTORS_LIMIT) FACTORS.clear();
-    FACTORS.set(log2Spread, factors);
+  BITS[0] = log2Spread;
+  const slot = (Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b) >>> 20) & (FACTOR_SLOTS - 1);
+  let factors = FACTOR_ROWS[slot];
+  if (FACTOR_KEYS[slot] !== log2Spread || factors === undefined) {
+    if (factors === undefined) {
+      factors = new Float64Array(DRAW_NODES.z.length);
+      FACTOR_ROWS[slot] = factors;
+    } else factors.fill(0);
+    FACTOR_KEYS[slot] = log2Spread;
   }
   return factors;
+}
+// 2^(spread·z_i), taken once per spread and node
+function factorAt(factors: Float64Array, i: number, log2Spread: number): number {
+  let factor = factors[i] as number;
+  if (factor === 0) {
+    factor = 2 ** (log2Spread * (DRAW_NODES.z[i] as number));
+    factors[i] = factor;
+  }
+  return factor;
 }
 
 // integrand values of one call (overDraws never re-enters itself: its f are element laws)
 const VALUES = new Float64Array(DRAW_NODES.z.length);
+
+// The integrand of a draw sum. The profile functions set these and the sum calls `integrand`, one function for
+// every element law: no closure per call, and one call site the compiler can specialise. The arithmetic is the
+// element laws' own, operation for operation, so the sums equal those of overDraws with the laws' closures.
+const ANY_ABOVE = 0;
+const BELOW = 1;
+const ENERGY_BELOW = 2;
+const CLOSURE = 3;
+const GAUSSIAN = 0;
+const UNIFORM = 1;
+const LOG_NORMAL = 2;
+const CONSTANT = 3;
+let integrandKind = CLOSURE;
+let integrandLaw = GAUSSIAN;
+let integrandT = 0;
+let integrandCount = 0;
+let integrandShare = 1;
+let integrandSpread = 0;
+let integrandClosure: (r: number) => number = () => 0;
+function lawAbove(r: number, t: number): number {
+  switch (integrandLaw) {
+    case GAUSSIAN:
+      return gaussianAbove(r, t);
+    case UNIFORM:
+      return !(t > 0) ? 1 : !(r > 0) ? 0 : Math.max(0, 1 - t / (r * SQRT3));
+    case LOG_NORMAL: {
+      const s = integrandSpread;
+      return !(t > 0) ? 1 : !(r > 0) ? 0 : normalSf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
+    }
+    default:
+      return r >= t ? 1 : 0;
+  }
+}
+function lawBelow(r: number, t: number): number {
+  switch (integrandLaw) {
+    case GAUSSIAN:
+      return gaussianBelow(r, t);
+    case UNIFORM:
+      return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3));
+    case LOG_NORMAL: {
+      const s = integrandSpread;
+      return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
+    }
+    default:
+      return r <= t ? 1 : 0;
+  }
+}
+function lawEnergyBelow(r: number, t: number): number {
+  switch (integrandLaw) {
+    case GAUSSIAN:
+      return gaussianEnergyBelow(r, t);
+    case UNIFORM:
+      return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3)) ** 3;
+    case LOG_NORMAL: {
+      const s = integrandSpread;
+      return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s - 2 * s * LN2);
+    }
+    default:
+      return r <= t ? 1 : 0;
+  }
+}
+function integrand(r: number): number {
+  switch (integrandKind) {
+    case ANY_ABOVE:
+      return anyOf(integrandShare * lawAbove(r, integrandT), integrandCount);
+    case BELOW:
+      return lawBelow(r, integrandT);
+    case ENERGY_BELOW:
+      return lawEnergyBelow(r, integrandT);
+    default:
+      return integrandClosure(r);
+  }
+}
+
+/**
+ * Set the integrand to a profile's element law at threshold t (`kind` ANY_ABOVE, BELOW or ENERGY_BELOW).
+ * Returns the integrand's value when a bound decides it for every draw (t at or past the bound), else NaN.
+ */
+function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, positiveOnly: boolean): number {
+  integrandKind = kind;
+  integrandT = t;
+  integrandCount = nonzeroElements(profile);
+  const bound = profile.bound;
+  let share = 0.5;
+  let law = GAUSSIAN;
+  switch (profile.shape) {
+    case "half-gaussian":
+      share = 1;
+      break;
+    case "uniform":
+      law = UNIFORM;
+      break;
+    case "constant":
+      law = CONSTANT;
+      share = 1;
+      break;
+    case "bounded":
+      if (bound !== undefined && bound > 0) share = 1;
+      break;
+    case "log-normal": {
+      const s = profile.elementLog2Spread ?? 0;
+      if (s > 0) {
+        law = LOG_NORMAL;
+        integrandSpread = s;
+      } else {
+        law = CONSTANT;
+        share = 1;
+      }
+      break;
+    }
+  }
+  integrandLaw = law;
+  integrandShare = positiveOnly ? share : 1;
+  // a bound (shape "bounded", or any shape's cap) decides the law at t for every draw, as in elementLaw
+  if (bound !== undefined && bound > 0) {
+    if (kind === ANY_ABOVE ? t > bound : t >= bound) return kind === ANY_ABOVE ? 0 : 1;
+  }
+  return NaN;
+}
+
+/**
+ * {@link overDraws} of a profile's element law at threshold t, without a closure: `anyOf(share·above(r, t), n)`
+ * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
+ * Equal, bit for bit, to overDraws with those closures.
+ */
+export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
+  const kind = measure === "any-above" ? ANY_ABOVE : measure === "below" ? BELOW : ENERGY_BELOW;
+  const decided = setLawIntegrand(profile, kind, t, positiveOnly);
+  if (!Number.isNaN(decided)) return decided;
+  return drawSum(profile.rms, profile.log2Spread);
+}
 
 /**
  * E over draws of a probability or share f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width
@@ -237,14 +383,20 @@ const VALUES = new Float64Array(DRAW_NODES.z.length);
  * others the Simpson rule (145).
  */
 export function overDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
-  if (!(log2Spread > 0)) return f(rms);
-  const { z, w } = DRAW_NODES;
-  const last = z.length - 1;
+  integrandKind = CLOSURE;
+  integrandClosure = f;
+  return drawSum(rms, log2Spread);
+}
+
+function drawSum(rms: number, log2Spread: number): number {
+  if (!(log2Spread > 0)) return integrand(rms);
+  const { w } = DRAW_NODES;
+  const last = w.length - 1;
   const factors = nodeFactors(log2Spread);
   // every f here is monotone in r, so equal values at the two extreme draws mean a constant integrand
   // (an overflow far out of reach, a share that is 0 or 1 for every draw): one evaluation pair instead of all
-  const low = f(rms * (factors[0] as number));
-  const high = f(rms * (factors[last] as number));
+  const low = integrand(rms * factorAt(factors, 0, log2Spread));
+  const high = integrand(rms * factorAt(factors, last, log2Spread));
   if (low === high) return Math.min(1, Math.max(0, low));
   const values = VALUES;
   values[0] = low;
@@ -252,14 +404,14 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
   let half = HALF_WEIGHTS[0]! * low + HALF_WEIGHTS[last]! * high;
   let threeQuarter = THREE_QUARTER_WEIGHTS[0]! * low + THREE_QUARTER_WEIGHTS[last]! * high;
   for (let i = HALF_STRIDE; i < last; i += HALF_STRIDE) {
-    const value = f(rms * (factors[i] as number));
+    const value = integrand(rms * factorAt(factors, i, log2Spread));
     values[i] = value;
     half += HALF_WEIGHTS[i]! * value;
   }
   for (let i = THREE_QUARTER_STRIDE; i < last; i += THREE_QUARTER_STRIDE) {
     let value = values[i] as number;
     if (i % HALF_STRIDE !== 0) {
-      value = f(rms * (factors[i] as number));
+      value = integrand(rms * factorAt(factors, i, log2Spread));
       values[i] = value;
     }
     threeQuarter += THREE_QUARTER_WEIGHTS[i]! * value;
@@ -269,13 +421,14 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
     return Math.min(1, Math.max(0, half));
   }
   // f is monotone, so between two evaluated nodes of equal value (a share already 0 or 1, a probability that
-  // underflows) every node has that value: the sum is the Simpson sum, with the flat stretches not re-evaluated
+  // underflows) every node has that value: the sum is the Simpson sum, with the flat stretches not re-evaluated.
+  // The evaluated nodes are the multiples of 4 and of 6: between two of them lie at most 3 others.
   for (let i = 1; i < last; i++) {
     if (i % HALF_STRIDE === 0 || i % THREE_QUARTER_STRIDE === 0) continue;
     const previous = Math.max(i - (i % HALF_STRIDE), i - (i % THREE_QUARTER_STRIDE));
     const next = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
     const before = values[previous] as number;
-    values[i] = before === values[next] ? before : f(rms * (factors[i] as number));
+    values[i] = before === values[next] ? before : integrand(rms * factorAt(factors, i, log2Spread));
   }
   let sum = (w[0] as number) * low + (w[last] as number) * high;
   for (let i = 1; i < last; i++) sum += (w[i] as number) * (values[i] as number);
@@ -338,15 +491,9 @@ export function gaussianEnergyBelowOverDraws(ratio: number, spread: number): num
  * a monotone f (the weights are positive and sum to 1), widened by 1e-12 for the rounding of the sum.
  */
 export function overDrawsBounds(rms: number, log2Spread: number, f: (r: number) => number): [number, number] {
-  if (!(log2Spread > 0)) {
-    const value = f(rms);
-    return [value, value];
-  }
-  const { z } = DRAW_NODES;
-  const a = f(rms * 2 ** (log2Spread * (z[0] as number)));
-  const b = f(rms * 2 ** (log2Spread * (z[z.length - 1] as number)));
-  if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
-  return [Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12))];
+  integrandKind = CLOSURE;
+  integrandClosure = f;
+  return drawBounds(rms, log2Spread, false);
 }
 
 // Nodes |z| ≤ 4 of the rule carry all but INNER_OUTSIDE of its weight (about 6e-5: twice the normal tail at 4).
@@ -357,6 +504,9 @@ const INNER_OUTSIDE = (() => {
   for (let i = 0; i < z.length; i++) if (Math.abs(z[i] as number) > INNER_LIMIT) outside += w[i] as number;
   return outside;
 })();
+// the nodes at z = ∓4 (exact on the grid: −9 + i/8)
+const INNER_LOW_NODE = Math.round((DRAW_LIMIT - INNER_LIMIT) / DRAW_STEP);
+const INNER_HIGH_NODE = Math.round((DRAW_LIMIT + INNER_LIMIT) / DRAW_STEP);
 
 /**
  * Tighter bounds of a [0, 1]-valued monotone integrand's draw integral than {@link overDrawsBounds}, for a test
@@ -365,19 +515,51 @@ const INNER_OUTSIDE = (() => {
  * 1e-9 for the difference between the rule's coarse and full sums (overDraws accepts the coarse one at 1e-10).
  */
 export function overDrawsInnerBounds(rms: number, log2Spread: number, f: (r: number) => number): [number, number] {
-  const [outerLow, outerHigh] = overDrawsBounds(rms, log2Spread, f);
-  if (outerLow === outerHigh || !(log2Spread > 0)) return [outerLow, outerHigh];
-  const a = f(rms * 2 ** (-log2Spread * INNER_LIMIT));
-  const b = f(rms * 2 ** (log2Spread * INNER_LIMIT));
+  integrandKind = CLOSURE;
+  integrandClosure = f;
+  return drawBounds(rms, log2Spread, true);
+}
+
+/**
+ * {@link overDrawsBounds} (or, `inner`, {@link overDrawsInnerBounds}) of a profile's element law at threshold t,
+ * without a closure; the integrands as in {@link lawOverDraws}.
+ */
+export function lawOverDrawsBounds(
+  profile: MagnitudeProfile,
+  measure: "any-above" | "below" | "energy-below",
+  t: number,
+  inner: boolean,
+): [number, number] {
+  const kind = measure === "any-above" ? ANY_ABOVE : measure === "below" ? BELOW : ENERGY_BELOW;
+  const decided = setLawIntegrand(profile, kind, t, false);
+  if (!Number.isNaN(decided)) return [decided, decided];
+  return drawBounds(profile.rms, profile.log2Spread, inner);
+}
+
+function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, number] {
+  if (!(log2Spread > 0)) {
+    const value = integrand(rms);
+    return [value, value];
+  }
+  // 2^(spread·z) at the nodes, as 2 ** (log2Spread * z) (z = ±9, ±4 exactly)
+  const factors = nodeFactors(log2Spread);
+  const a = integrand(rms * factorAt(factors, 0, log2Spread));
+  const b = integrand(rms * factorAt(factors, factors.length - 1, log2Spread));
+  if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
+  const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
+  const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12));
+  if (!inner || outerLow === outerHigh) return [outerLow, outerHigh];
+  const c = integrand(rms * factorAt(factors, INNER_LOW_NODE, log2Spread));
+  const d = integrand(rms * factorAt(factors, INNER_HIGH_NODE, log2Spread));
   const inside = 1 - INNER_OUTSIDE;
-  const low = Math.max(0, Math.min(a, b) * inside * (1 - 1e-9));
-  const high = Math.min(1, (Math.max(a, b) * inside + INNER_OUTSIDE) * (1 + 1e-9));
+  const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
+  const high = Math.min(1, (Math.max(c, d) * inside + INNER_OUTSIDE) * (1 + 1e-9));
   return [Math.max(outerLow, low), Math.min(outerHigh, high)];
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a
-// decreasing f, f ≥ p for an increasing one). Brackets by doubling steps from v = 0, then bisects.
-function crossing(f: (v: number) => number, p: number, decreasing: boolean): number {
+// decreasing f, f ≥ p for an increasing one). Brackets by doubling steps from v = 0, then bisects to `tolerance`.
+function crossing(f: (v: number) => number, p: number, decreasing: boolean, tolerance: number): number {
   const beyond = (v: number): boolean => (decreasing ? f(v) <= p : f(v) >= p);
   const LIMIT = 2200;
   let lo: number;
@@ -401,12 +583,54 @@ function crossing(f: (v: number) => number, p: number, decreasing: boolean): num
       hi = Math.min(LIMIT, hi + step);
     }
   }
-  for (let i = 0; i < 80 && hi - lo > 1e-9; i++) {
+  for (let i = 0; i < 80 && hi - lo > tolerance; i++) {
     const mid = 0.5 * (lo + hi);
     if (beyond(mid)) hi = mid;
     else lo = mid;
   }
   return 0.5 * (lo + hi);
+}
+
+// The lattice of mixtureCrossing: g at v = m·step for integer m, memoised in one reused window (NaN: not yet
+// evaluated). g is a closure (mixtureCrossing) or the law integrand at r = 1, t = 2^v (lawMixtureCrossing).
+let lattice = new Float64Array(2048);
+let latticeBase = 0;
+let latticeStep = 0;
+let latticeClosure: ((v: number) => number) | null = null;
+function latticeValue(v: number): number {
+  if (latticeClosure !== null) return latticeClosure(v);
+  integrandT = 2 ** v;
+  return integrand(1);
+}
+// make lattice points [from, to] addressable, keeping the values already there
+function latticeCover(from: number, to: number): void {
+  if (from >= latticeBase && to < latticeBase + lattice.length) return;
+  const low = Math.min(from, latticeBase);
+  const high = Math.max(to, latticeBase + lattice.length - 1);
+  const grown = new Float64Array(Math.max(2 * lattice.length, high - low + 1 + 256)).fill(NaN);
+  const shift = latticeBase - low + (from < latticeBase ? 128 : 0);
+  grown.set(lattice, shift);
+  latticeBase -= shift;
+  lattice = grown;
+}
+// Σ_i w_i·g(lattice point j + half − i): node i sits at z = (i − half)·DRAW_STEP, so v_j − spread·z_i is that point
+function latticeMixture(j: number): number {
+  const w = DRAW_NODES.w;
+  const count = w.length;
+  const half = (count - 1) / 2;
+  latticeCover(j + half - (count - 1), j + half);
+  const values = lattice;
+  const offset = j + half - latticeBase;
+  let sum = 0;
+  for (let i = 0; i < count; i++) {
+    let value = values[offset - i] as number;
+    if (value !== value) {
+      value = latticeValue((j + half - i) * latticeStep);
+      values[offset - i] = value;
+    }
+    sum += (w[i] as number) * value;
+  }
+  return sum;
 }
 
 /**
@@ -418,40 +642,41 @@ function crossing(f: (v: number) => number, p: number, decreasing: boolean): num
  * `decreasing`: g falls as v grows (exceedance probabilities); otherwise it rises (shares below a level).
  */
 export function mixtureCrossing(g: (v: number) => number, spread: number, p: number, decreasing: boolean): number {
-  const direct = crossing(g, p, decreasing);
-  if (!(spread > 0)) return direct;
-  const { w } = DRAW_NODES;
-  const half = (w.length - 1) / 2;
+  if (!(spread > 0)) return crossing(g, p, decreasing, 1e-9);
+  latticeClosure = g;
+  const start = crossing(g, p, decreasing, (spread * DRAW_STEP) / 4);
+  const level = latticeCrossing(spread, p, decreasing, start);
+  latticeClosure = null;
+  return level;
+}
+
+/**
+ * {@link mixtureCrossing} of a profile's element law without its bound, at r = 1 and t = 2^v:
+ * g(v) = anyOf(above(1, 2^v), n) (`measure` "any-above", decreasing) or below(1, 2^v) ("below", increasing), the
+ * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian").
+ */
+export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number): number {
+  const kind = measure === "any-above" ? ANY_ABOVE : BELOW;
+  const decreasing = kind === ANY_ABOVE;
+  // the bound's verdict is ignored: the levels are solved without it
+  setLawIntegrand(profile, kind, 1, false);
+  latticeClosure = null;
+  const spread = profile.log2Spread;
+  if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
+  const start = crossing(latticeValue, p, decreasing, (spread * DRAW_STEP) / 4);
+  return latticeCrossing(spread, p, decreasing, start);
+}
+
+// The lattice search of mixtureCrossing from a starting level. The computed mixture is monotone in j (rounding is
+// monotone, the weights positive), so the bracket found is the same from any start: the start only saves steps.
+function latticeCrossing(spread: number, p: number, decreasing: boolean, direct: number): number {
   const step = spread * DRAW_STEP;
-  // lattice values memoised in a window around the start, grown when the search leaves it
-  let base = Math.round(direct / step) - 4 * half;
-  let memo = new Float64Array(8 * half + 1).fill(NaN);
-  const at = (m: number): number => {
-    let index = m - base;
-    if (index < 0 || index >= memo.length) {
-      const grown = new Float64Array(memo.length * 2 + Math.abs(index)).fill(NaN);
-      const shift = index < 0 ? grown.length - memo.length : 0;
-      grown.set(memo, shift);
-      base -= shift;
-      memo = grown;
-      index = m - base;
-    }
-    let value = memo[index] as number;
-    if (Number.isNaN(value)) {
-      value = g(m * step);
-      memo[index] = value;
-    }
-    return value;
-  };
-  // node i sits at z = (i − half)·DRAW_STEP, so v_j − spread·z_i is lattice point j + half − i
-  const mixture = (j: number): number => {
-    let sum = 0;
-    for (let i = 0; i < w.length; i++) sum += (w[i] as number) * at(j + half - i);
-    return sum;
-  };
-  const beyond = (j: number): boolean => (decreasing ? mixture(j) <= p : mixture(j) >= p);
-  const limit = Math.ceil(2200 / step);
+  latticeStep = step;
+  lattice.fill(NaN);
   const start = Math.round(direct / step);
+  latticeBase = start - (lattice.length >> 1);
+  const beyond = (j: number): boolean => (decreasing ? latticeMixture(j) <= p : latticeMixture(j) >= p);
+  const limit = Math.ceil(2200 / step);
   const sigma = Math.round(1 / DRAW_STEP);
   let lo: number;
   let hi: number;
@@ -479,8 +704,8 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
     if (beyond(mid)) hi = mid;
     else lo = mid;
   }
-  const a = mixture(lo);
-  const b = mixture(hi);
+  const a = latticeMixture(lo);
+  const b = latticeMixture(hi);
   let fraction = 0.5;
   if (a > 0 && b > 0 && a !== b) fraction = (Math.log(p) - Math.log(a)) / (Math.log(b) - Math.log(a));
   else if (a !== b) fraction = (p - a) / (b - a);

@@ -3,8 +3,8 @@
  * smallest magnitudes) and the numbers that judge it against one format's range.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, normalSf, normalUpperQuantile } from "./_math.js";
-import { elementLaw, isConstantLike, isEmpty, nonzeroElements, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, mixtureCrossing, overDraws } from "./laws.js";
+import { normalSf, normalUpperQuantile } from "./_math.js";
+import { isConstantLike, isEmpty, nonzeroElements, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, lawMixtureCrossing, lawOverDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -53,12 +53,9 @@ export { nonzeroElements } from "./laws.js";
  */
 export function probabilityAnyAbove(profile: MagnitudeProfile, t: number, positiveOnly = false): number {
   if (isEmpty(profile)) return 0;
-  const law = elementLaw(profile);
-  const n = nonzeroElements(profile);
-  const share = positiveOnly ? law.positiveShare : 1;
   // constant magnitudes: every element equals the drawn scale, so the event is log2 r ≥ log2 t (closed form)
   if (isConstantLike(profile)) return drawReaches(profile, t);
-  return overDraws(profile.rms, profile.log2Spread, (r) => anyOf(share * law.above(r, t), n));
+  return lawOverDraws(profile, "any-above", t, positiveOnly);
 }
 
 // P(log2 r ≥ log2 t) for a constant-like profile: the draw's z must pass (log2 t − log2 rms)/spread
@@ -70,7 +67,6 @@ function drawReaches(profile: MagnitudeProfile, t: number): number {
 /** Expected share of nonzero elements at or below t, over draws. */
 export function fractionBelow(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile)) return 0;
-  const law = elementLaw(profile);
   if (isConstantLike(profile)) {
     if (!(profile.log2Spread > 0)) return profile.rms <= t ? 1 : 0;
     return normalSf((Math.log2(profile.rms) - Math.log2(t)) / profile.log2Spread);
@@ -79,7 +75,7 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
     const closed = gaussianBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
   }
-  return overDraws(profile.rms, profile.log2Spread, (r) => law.below(r, t));
+  return lawOverDraws(profile, "below", t);
 }
 
 // Whether the element law at threshold t is the Gaussian's for every draw (no bound at or below t), with a spread
@@ -96,20 +92,49 @@ function gaussianBelowBound(profile: MagnitudeProfile, t: number): boolean {
  */
 export function energyBelow(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile)) return 0;
-  const law = elementLaw(profile);
   if (isConstantLike(profile)) return fractionBelow(profile, t);
   if (gaussianBelowBound(profile, t)) {
     const closed = gaussianEnergyBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
   }
-  return overDraws(profile.rms, profile.log2Spread, (r) => law.energyBelow(r, t));
+  return lawOverDraws(profile, "energy-below", t);
 }
 
 // The levels of profileStatistics in binades from the rms depend on the element law, the element count, the
-// spread and the quantile levels only; many tensors (and every plan of a comparison) share them. Bounded, so a
-// long-running batch worker does not grow without end.
-const LEVELS = new Map<string, { max: number; low: number }>();
-const LEVELS_LIMIT = 100_000;
+// spread and the quantile levels only; many tensors (and every plan of a comparison) share them. An open-addressing
+// table on those six numbers (no string key per call), cleared when half full, so a long-running batch worker does
+// not grow without end.
+const LEVEL_SLOTS = 1 << 16;
+const LEVEL_KEYS = new Float64Array(LEVEL_SLOTS * 6).fill(NaN);
+const LEVEL_VALUES = new Float64Array(LEVEL_SLOTS * 2);
+const LEVELS_LIMIT = LEVEL_SLOTS >> 1;
+let levelCount = 0;
+const KEY = new Float64Array(6);
+const KEY_WORDS = new Int32Array(KEY.buffer);
+const SHAPE_CODES: Record<string, number> = { gaussian: 0, "half-gaussian": 1, uniform: 2, constant: 3, bounded: 0, "log-normal": 4 };
+// the slot holding KEY, or the empty slot where it goes
+function levelSlot(): number {
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < 12; i++) hash = Math.imul(hash ^ (KEY_WORDS[i] as number), 0x01000193);
+  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
+  let slot = (hash ^ (hash >>> 12)) & (LEVEL_SLOTS - 1);
+  for (;;) {
+    const at = slot * 6;
+    const first = LEVEL_KEYS[at] as number;
+    if (first !== first) return slot;
+    if (
+      first === KEY[0] &&
+      LEVEL_KEYS[at + 1] === KEY[1] &&
+      LEVEL_KEYS[at + 2] === KEY[2] &&
+      LEVEL_KEYS[at + 3] === KEY[3] &&
+      LEVEL_KEYS[at + 4] === KEY[4] &&
+      LEVEL_KEYS[at + 5] === KEY[5]
+    ) {
+      return slot;
+    }
+    slot = (slot + 1) & (LEVEL_SLOTS - 1);
+  }
+}
 
 /** The format-independent statistics of a profile at the given quantile levels. */
 export function profileStatistics(
@@ -129,21 +154,30 @@ export function profileStatistics(
   const n = nonzeroElements(profile);
   // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
   // breaks the scale family, so solve without it and cap the levels at the bound afterwards
-  const { bound, ...unbounded } = profile;
-  const lawShape = profile.shape === "bounded" ? "gaussian" : profile.shape;
-  const key = `${lawShape}|${lawShape === "log-normal" ? (profile.elementLog2Spread ?? 0) : 0}|${n}|${profile.log2Spread}|${levels.maxQuantile}|${levels.lowQuantile}`;
-  let found = LEVELS.get(key);
-  if (found === undefined) {
-    const gaussianLike = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
-    found = {
-      max: mixtureCrossing((v) => anyOf(gaussianLike.above(1, 2 ** v), n), profile.log2Spread, levels.maxQuantile, true),
-      low: mixtureCrossing((v) => gaussianLike.below(1, 2 ** v), profile.log2Spread, levels.lowQuantile, false),
-    };
-    if (LEVELS.size >= LEVELS_LIMIT) LEVELS.clear();
-    LEVELS.set(key, found);
+  const bound = profile.bound;
+  const lawShape = SHAPE_CODES[profile.shape] ?? -1;
+  KEY[0] = lawShape;
+  KEY[1] = lawShape === 4 ? (profile.elementLog2Spread ?? 0) : 0;
+  KEY[2] = n;
+  KEY[3] = profile.log2Spread;
+  KEY[4] = levels.maxQuantile;
+  KEY[5] = levels.lowQuantile;
+  let slot = levelSlot();
+  if (LEVEL_KEYS[slot * 6] !== LEVEL_KEYS[slot * 6]) {
+    const max = lawMixtureCrossing(profile, "any-above", levels.maxQuantile);
+    const low = lawMixtureCrossing(profile, "below", levels.lowQuantile);
+    if (levelCount >= LEVELS_LIMIT) {
+      LEVEL_KEYS.fill(NaN);
+      levelCount = 0;
+      slot = levelSlot();
+    }
+    LEVEL_KEYS.set(KEY, slot * 6);
+    LEVEL_VALUES[slot * 2] = max;
+    LEVEL_VALUES[slot * 2 + 1] = low;
+    levelCount++;
   }
-  let max = profile.rms * 2 ** found.max;
-  let low = profile.rms * 2 ** found.low;
+  let max = profile.rms * 2 ** (LEVEL_VALUES[slot * 2] as number);
+  let low = profile.rms * 2 ** (LEVEL_VALUES[slot * 2 + 1] as number);
   if (bound !== undefined && bound > 0) {
     max = Math.min(max, bound);
     low = Math.min(low, bound);
