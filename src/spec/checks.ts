@@ -6,7 +6,7 @@
 import { didYouMean } from "./issues.js";
 import type { RawIssue } from "./messages.js";
 import { DEFAULT_PLAN_NAME } from "./normalize.js";
-import { inputKindCount, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./schema.js";
+import { inputKindCount, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./limits.js";
 
 type Path = (string | number)[];
 

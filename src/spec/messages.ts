@@ -6,7 +6,7 @@
 import type * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
 import { didYouMean } from "./issues.js";
-import { BARE_LAYER_TYPES, FINAL_MESSAGE, LAYER_TYPES, MAX_SIZE } from "./schema.js";
+import { BARE_LAYER_TYPES, FINAL_MESSAGE, LAYER_TYPES, MAX_SIZE } from "./limits.js";
 
 /** A validation problem before it is given a file position. */
 export interface RawIssue {

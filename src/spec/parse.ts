@@ -119,7 +119,7 @@ function validateSpec(document: Record<string, unknown>, source: string, parsed:
     const at = locateIn(doc, counter, raw.path, raw.atKey);
     return { file: source, line: at.line, column: at.column, path: formatSpecPath(raw.path), message: raw.message };
   };
-  const checked = specSchema.safeParse(data, { error: errorMap, reportInput: true });
+  const checked = specSchema().safeParse(data, { error: errorMap, reportInput: true });
   const cross = crossChecks(data);
   const errors = [...(checked.success ? [] : flattenIssues(checked.error.issues)), ...cross.errors].map(toIssue);
   if (errors.length > 0 || !checked.success) return { ok: false, issues: dedupe(errors).sort(byPosition) };

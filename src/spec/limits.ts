@@ -1,0 +1,73 @@
+/**
+ * The spec's names and limits, without the zod schema: the plain-data checks, the messages and the fast
+ * validator use them without loading zod (schema.ts re-exports them).
+ */
+import { ACTIVATIONS } from "./types.js";
+
+/** Marks a union's own message as the one to show (see messages.ts). */
+export const FINAL_MESSAGE = "\u0001";
+
+/** Largest size (width, vocabulary, batch…) accepted: larger is beyond any real network and likely a typo. */
+export const MAX_SIZE = 1e9;
+/** Largest element count accepted for one tensor the spec fixes on its own (input batch, embedding table). */
+export const MAX_TENSOR_ELEMENTS = 1e12;
+/** Largest number of layers a spec may expand to (repeats and blocks unrolled). */
+export const MAX_EXPANDED_LAYERS = 1_000_000;
+
+/** Layer and block names: letters, digits, "_" and "-", starting with a letter, digit or "_". */
+export const NAME_PATTERN = /^[A-Za-z0-9_][A-Za-z0-9_-]*$/;
+
+/** Every layer `type` a spec may use. */
+export const LAYER_TYPES = [
+  "dense",
+  "conv2d",
+  "embedding",
+  ...ACTIVATIONS,
+  "layer-norm",
+  "rms-norm",
+  "batch-norm",
+  "dropout",
+  "average-pool",
+  "max-pool",
+  "flatten",
+  "residual",
+  "attention",
+  "gated-feed-forward",
+  "use",
+  "repeat",
+] as const;
+export type LayerType = (typeof LAYER_TYPES)[number];
+
+/** Layer types that need no parameters and so may be written as a bare string (`- relu`). */
+export const BARE_LAYER_TYPES = [
+  ...ACTIVATIONS,
+  "layer-norm",
+  "rms-norm",
+  "batch-norm",
+  "flatten",
+] as const satisfies readonly LayerType[];
+
+/** Initialisation shorthands: `<rule>-<distribution>`, plus `orthogonal` and `zeros`. */
+export const INIT_SHORTHANDS = [
+  "he-normal",
+  "he-uniform",
+  "glorot-normal",
+  "glorot-uniform",
+  "xavier-normal",
+  "xavier-uniform",
+  "lecun-normal",
+  "lecun-uniform",
+  "orthogonal",
+  "zeros",
+] as const;
+
+/** The activation layer types (the bare ones and leaky-relu). */
+export const ACTIVATION_TYPES = ["relu", "leaky-relu", "gelu", "silu", "tanh", "sigmoid", "softplus", "identity", "softmax"] as const;
+
+const INPUT_KINDS = [["features", "positions"], ["tokens"], ["channels", "height", "width"]] as const;
+
+/** How many kinds of input an `input` mapping names keys of (features, tokens, image). */
+export function inputKindCount(value: unknown): number {
+  if (typeof value !== "object" || value === null) return 0;
+  return INPUT_KINDS.filter((keys) => keys.some((key) => key in value)).length;
+}
