@@ -8,7 +8,8 @@ import { errorMap, flattenIssues, type RawIssue } from "./messages.js";
 import { normalizeSpec } from "./normalize.js";
 import { readPlainYaml } from "./plain-yaml.js";
 import { yamlLib } from "./yaml-lib.js";
-import { specSchema } from "./schema.js";
+import { specSchema, type RawSpec } from "./schema.js";
+import { validPlainSpec } from "./validate.js";
 import type { NetworkSpec, SpecPath } from "./types.js";
 
 /** What parsing a spec gives: the spec with a way back to positions, or every problem found. */
@@ -119,20 +120,27 @@ function validateSpec(document: Record<string, unknown>, source: string, parsed:
     const at = locateIn(doc, counter, raw.path, raw.atKey);
     return { file: source, line: at.line, column: at.column, path: formatSpecPath(raw.path), message: raw.message };
   };
-  const checked = specSchema().safeParse(data, { error: errorMap, reportInput: true });
   const cross = crossChecks(data);
+  // a valid spec needs no zod (validate.ts gives what zod's parse would); anything else gets zod's messages
+  const fast = cross.errors.length === 0 ? validPlainSpec(data) : undefined;
+  if (fast !== undefined) return validSpec(fast, source, parsed, cross.warnings.map(toIssue));
+  const checked = specSchema().safeParse(data, { error: errorMap, reportInput: true });
   const errors = [...(checked.success ? [] : flattenIssues(checked.error.issues)), ...cross.errors].map(toIssue);
   if (errors.length > 0 || !checked.success) return { ok: false, issues: dedupe(errors).sort(byPosition) };
-  const spec = normalizeSpec(checked.data, source);
+  return validSpec(checked.data, source, parsed, cross.warnings.map(toIssue));
+}
+
+/** The result for a spec that passed validation and the cross-key checks. */
+function validSpec(raw: RawSpec, source: string, parsed: () => Parsed, warnings: SpecIssue[]): SpecResult {
   return {
     ok: true,
-    spec,
+    spec: normalizeSpec(raw, source),
     locate: (path: SpecPath) => {
       const { doc, counter } = parsed();
       const at = locateIn(doc, counter, path);
       return { file: source, line: at.line, column: at.column };
     },
-    warnings: cross.warnings.map(toIssue).sort(byPosition),
+    warnings: warnings.sort(byPosition),
   };
 }
 
