@@ -83,27 +83,32 @@ export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options:
   if (!(o.flushTolerance > 0 && o.flushTolerance < 1)) {
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
-  const overflowOk = (k: number) => riskWithin(tensors, k, o.riskBudget);
-  const flushOk = (k: number) => flushWithin(tensors, k, o.flushTolerance);
+  // the tensors most likely to overflow first (lowest own overflow edge), then those most likely to flush (highest
+  // own flush edge): the searches decide sooner when the tensors that decide are integrated first
+  const overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
+  const flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
+  const overflowOk = (k: number) => riskWithin(tensors, overflowOrder, k, o.riskBudget);
 
-  // the window's overflow edge is at or below every tensor's own, its flush edge at or above: start from the
-  // tightest guesses (any start gives the same edge; a good one saves steps)
+  // the window's overflow edge is at or below every tensor's own: start from the tightest guess (any start gives
+  // the same edge; a good one saves steps)
   let overflowGuess = Infinity;
-  let flushGuess = -Infinity;
   for (const t of tensors) {
-    if (t.edgeGuessesLog2 === undefined) continue;
-    overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
-    flushGuess = Math.max(flushGuess, t.edgeGuessesLog2.flush);
+    if (t.edgeGuessesLog2 !== undefined) overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
   }
   const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
   // highest k with overflowOk (monotone: true then false as k grows)
   const highest = lastTrue(o.lowestLog2, o.highestLog2, overflowOk, Number.isFinite(overflowGuess) ? overflowGuess : middle);
-  // lowest k with flushOk (monotone: false then true as k grows)
-  const lowest = firstTrue(o.lowestLog2, o.highestLog2, flushOk, Number.isFinite(flushGuess) ? flushGuess : middle);
+  // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
+  const lowest = flushEdge(tensors, flushOrder, o.lowestLog2, o.highestLog2, o.flushTolerance);
 
-  const upperEdgeSetBy = highest === null ? worstRisk(tensors, o.lowestLog2) : highest < o.highestLog2 ? worstRisk(tensors, highest + 1) : null;
+  const upperEdgeSetBy =
+    highest === null ? worstRisk(tensors, overflowOrder, o.lowestLog2) : highest < o.highestLog2 ? worstRisk(tensors, overflowOrder, highest + 1) : null;
   const lowerEdgeSetBy =
-    lowest === null ? worstFlush(tensors, o.highestLog2).id : lowest > o.lowestLog2 ? worstFlush(tensors, lowest - 1).id : null;
+    lowest === null
+      ? worstFlush(tensors, flushOrder, o.highestLog2).id
+      : lowest > o.lowestLog2
+        ? worstFlush(tensors, flushOrder, lowest - 1).id
+        : null;
 
   const empty = highest === null || lowest === null || lowest > highest;
   let pick: number | null = null;
@@ -134,29 +139,34 @@ function totalRisk(tensors: readonly ScaledTensorCurves[], k: number): number {
   return Math.min(1, sum);
 }
 
+// Tensor indices by a key, smallest first (stable): the order in which the searches integrate.
+function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
+  const keys = tensors.map(key);
+  return Array.from(tensors.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
+}
+
 // Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
-// not, tensors are integrated in order of their upper bounds, largest first, until the exact part plus the
+// not, tensors are integrated in priority order (those likeliest to overflow first) until the exact part plus the
 // remaining bounds decides: the same answer as summing every integral, for a fraction of the integrals.
-function riskWithin(tensors: readonly ScaledTensorCurves[], k: number, budget: number): boolean {
+function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number, budget: number): boolean {
   if (!tensors.every((t) => t.overflowRiskBounds !== undefined)) return totalRisk(tensors, k) <= budget;
   const lows = new Float64Array(tensors.length);
   const highs = new Float64Array(tensors.length);
   let low = 0;
   let high = 0;
-  tensors.forEach((t, i) => {
-    const [a, b] = t.overflowRiskBounds!(k);
+  for (let i = 0; i < tensors.length; i++) {
+    const [a, b] = (tensors[i] as ScaledTensorCurves).overflowRiskBounds!(k);
     lows[i] = a;
     highs[i] = b;
     low += a;
     high += b;
-  });
+    // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
+    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+  }
   // widened for the rounding of the sums
   if (high * (1 + 1e-12) <= budget) return true;
-  if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
-  const order = Array.from(tensors.keys())
-    .filter((i) => (lows[i] as number) !== (highs[i] as number))
-    .sort((a, b) => (highs[b] as number) - (highs[a] as number));
   for (const i of order) {
+    if ((lows[i] as number) === (highs[i] as number)) continue;
     const exact = (tensors[i] as ScaledTensorCurves).overflowRisk(k);
     low += exact - (lows[i] as number);
     high += exact - (highs[i] as number);
@@ -166,65 +176,80 @@ function riskWithin(tensors: readonly ScaledTensorCurves[], k: number, budget: n
   return totalRisk(tensors, k) <= budget;
 }
 
-function worstRisk(tensors: readonly ScaledTensorCurves[], k: number): string | null {
-  // a tensor whose upper bound is below another's lower bound cannot be the worst: integrate only the others
+// The tensor with the largest overflow risk at k (the first such, in the given order of tensors). A tensor whose
+// upper bound is below a value already found, or below another's lower bound, cannot be the largest: only the
+// others are integrated, in priority order so that a large value is found early.
+function worstRisk(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): string | null {
+  return worst(tensors, order, (t) => t.overflowRisk(k), (t) => t.overflowRiskBounds?.(k)).id;
+}
+
+function worst(
+  tensors: readonly ScaledTensorCurves[],
+  order: readonly number[],
+  value: (t: ScaledTensorCurves) => number,
+  bounds: (t: ScaledTensorCurves) => readonly [number, number] | undefined,
+): { id: string | null; value: number } {
   const highs = new Float64Array(tensors.length).fill(Infinity);
   let floor = -Infinity;
   tensors.forEach((t, i) => {
-    if (!t.overflowRiskBounds) return;
-    const [low, high] = t.overflowRiskBounds(k);
-    highs[i] = high;
-    if (low > floor) floor = low;
+    const b = bounds(t);
+    if (b === undefined) return;
+    highs[i] = b[1];
+    if (b[0] > floor) floor = b[0];
   });
-  let best: string | null = null;
-  let bestRisk = -1;
-  for (let i = 0; i < tensors.length; i++) {
+  const values = new Float64Array(tensors.length);
+  const known = new Uint8Array(tensors.length);
+  for (const i of order) {
     if ((highs[i] as number) < floor) continue;
-    const t = tensors[i] as ScaledTensorCurves;
-    const r = t.overflowRisk(k);
-    if (r > bestRisk) {
-      bestRisk = r;
-      best = t.id;
-    }
+    const v = value(tensors[i] as ScaledTensorCurves);
+    values[i] = v;
+    known[i] = 1;
+    if (v > floor) floor = v;
   }
-  return best;
-}
-
-// Whether every tensor's flushed share at k is within the tolerance (the worst share ≤ tolerance), deciding by the
-// bounds where they can.
-function flushWithin(tensors: readonly ScaledTensorCurves[], k: number, tolerance: number): boolean {
-  for (const t of tensors) {
-    if (t.flushedEnergyBounds) {
-      const [low, high] = t.flushedEnergyBounds(k);
-      if (high <= tolerance) continue;
-      if (low > tolerance) return false;
-    }
-    if (!(t.flushedEnergy(k) <= tolerance)) return false;
-  }
-  return true;
-}
-
-function worstFlush(tensors: readonly ScaledTensorCurves[], k: number): { id: string | null; share: number } {
-  // a tensor whose upper bound is below another's lower bound cannot be the worst: integrate only the others
-  const highs = new Float64Array(tensors.length).fill(Infinity);
-  let floor = -Infinity;
-  tensors.forEach((t, i) => {
-    if (!t.flushedEnergyBounds) return;
-    const [low, high] = t.flushedEnergyBounds(k);
-    highs[i] = high;
-    if (low > floor) floor = low;
-  });
   let id: string | null = null;
-  let share = 0;
-  tensors.forEach((t, i) => {
-    if ((highs[i] as number) < floor) return;
-    const s = t.flushedEnergy(k);
-    if (s > share || id === null) {
-      share = Math.max(share, s);
-      id = t.id;
+  let best = -Infinity;
+  for (let i = 0; i < tensors.length; i++) {
+    if (known[i] === 0) continue;
+    const v = values[i] as number;
+    if (v > best || id === null) {
+      best = Math.max(best, v);
+      id = (tensors[i] as ScaledTensorCurves).id;
     }
-  });
-  return { id, share };
+  }
+  return { id, value: best };
+}
+
+// Whether one tensor's flushed share at k is within the tolerance, deciding by its bounds where they can.
+function flushOkAt(t: ScaledTensorCurves, k: number, tolerance: number): boolean {
+  if (t.flushedEnergyBounds) {
+    const [low, high] = t.flushedEnergyBounds(k);
+    if (high <= tolerance) return true;
+    if (low > tolerance) return false;
+  }
+  return t.flushedEnergy(k) <= tolerance;
+}
+
+// The smallest k in [lo, hi] at which every tensor's flushing is tolerated (null if none): each tensor's share
+// falls as k grows, so this is the largest of the tensors' own edges. The tensors are visited in priority order
+// (highest guessed edge first); one that is tolerated at the edge found so far cannot raise it (one test, mostly
+// by its bounds), one that is not raises it to its own edge (a gallop from its guess).
+function flushEdge(tensors: readonly ScaledTensorCurves[], order: readonly number[], lo: number, hi: number, tolerance: number): number | null {
+  let edge = lo;
+  for (const i of order) {
+    const t = tensors[i] as ScaledTensorCurves;
+    if (flushOkAt(t, edge, tolerance)) continue;
+    if (edge === hi) return null;
+    const own = firstTrue(edge + 1, hi, (k) => flushOkAt(t, k, tolerance), t.edgeGuessesLog2?.flush ?? edge + 1);
+    if (own === null) return null;
+    edge = own;
+  }
+  return edge;
+}
+
+// The tensor with the largest flushed share at k (the first such; the first tensor when every share is 0).
+function worstFlush(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): { id: string | null; share: number } {
+  const { id, value } = worst(tensors, order, (t) => t.flushedEnergy(k), (t) => t.flushedEnergyBounds?.(k));
+  return { id, share: Math.max(0, value) };
 }
 
 /**

@@ -1,0 +1,111 @@
+// The window's searches (bounds, priority orders, per-tensor flush edges, pruned worst-tensor scans) must give
+// exactly what the definition gives: every exponent of the range tried, every curve evaluated exactly. The
+// reference below is that definition, written out directly; the curves are random monotone ones with valid bounds.
+import * as fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import { lossScaleWindow, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
+
+const LOW = -12;
+const HIGH = 12;
+const OPTIONS = { riskBudget: 1e-4, flushTolerance: 1e-3, marginBinades: 2, lowestLog2: LOW, highestLog2: HIGH } as const;
+
+// The window by its definition (src/scale/window.ts doc comments): the union bound of the exact risks within the
+// budget, every exact share within the tolerance, the edge setters the first tensors with the largest exact value.
+function directWindow(tensors: readonly ScaledTensorCurves[], o: WindowOptions) {
+  const overflowOk = (k: number) => Math.min(1, tensors.reduce((sum, t) => sum + t.overflowRisk(k), 0)) <= o.riskBudget;
+  const flushOk = (k: number) => tensors.every((t) => t.flushedEnergy(k) <= o.flushTolerance);
+  let highest: number | null = null;
+  for (let k = o.lowestLog2; k <= o.highestLog2 && overflowOk(k); k++) highest = k;
+  let lowest: number | null = null;
+  for (let k = o.highestLog2; k >= o.lowestLog2 && flushOk(k); k--) lowest = k;
+  const firstLargest = (value: (t: ScaledTensorCurves) => number): string | null => {
+    let best: ScaledTensorCurves | null = null;
+    for (const t of tensors) if (best === null || value(t) > value(best)) best = t;
+    return best?.id ?? null;
+  };
+  const upper =
+    highest === null ? firstLargest((t) => t.overflowRisk(o.lowestLog2)) : highest < o.highestLog2 ? firstLargest((t) => t.overflowRisk(highest! + 1)) : null;
+  const lower =
+    lowest === null ? firstLargest((t) => t.flushedEnergy(o.highestLog2)) : lowest > o.lowestLog2 ? firstLargest((t) => t.flushedEnergy(lowest! - 1)) : null;
+  return { lowestLog2: lowest, highestLog2: highest, upperEdgeSetBy: upper, lowerEdgeSetBy: lower };
+}
+
+const logistic = (x: number) => 1 / (1 + Math.exp(-x));
+
+interface Shape {
+  overflowCentre: number;
+  overflowSlope: number;
+  flushCentre: number;
+  flushSlope: number;
+  slack: number;
+  guess: number | null;
+  bounds: boolean;
+  copy: boolean;
+}
+
+// Smooth monotone curves (logistic in k; tiny values far from the centre), with bounds widened around the exact value.
+function curves(shapes: readonly Shape[]): ScaledTensorCurves[] {
+  const out: ScaledTensorCurves[] = [];
+  shapes.forEach((s, i) => {
+    const overflowRisk = (k: number) => logistic((k - s.overflowCentre) * s.overflowSlope);
+    const flushedEnergy = (k: number) => logistic((s.flushCentre - k) * s.flushSlope);
+    const widen = (v: number): readonly [number, number] => [v * (1 - s.slack), Math.min(1, v * (1 + 1e3 * s.slack) + s.slack)];
+    const t: ScaledTensorCurves = {
+      id: `t${i}`,
+      overflowRisk,
+      flushedEnergy,
+      ...(s.bounds ? { overflowRiskBounds: (k: number) => widen(overflowRisk(k)), flushedEnergyBounds: (k: number) => widen(flushedEnergy(k)) } : {}),
+      ...(s.guess === null ? {} : { edgeGuessesLog2: { overflow: s.overflowCentre + s.guess, flush: s.flushCentre - s.guess } }),
+    };
+    out.push(t);
+    // an identical tensor under another name: the first of the two must set an edge, as the definition says
+    if (s.copy) out.push({ ...t, id: `t${i}-copy` });
+  });
+  return out;
+}
+
+const shape: fc.Arbitrary<Shape> = fc.record({
+  overflowCentre: fc.double({ min: -20, max: 20, noNaN: true }),
+  overflowSlope: fc.double({ min: 0.3, max: 8, noNaN: true }),
+  flushCentre: fc.double({ min: -20, max: 20, noNaN: true }),
+  flushSlope: fc.double({ min: 0.3, max: 8, noNaN: true }),
+  slack: fc.constantFrom(0, 1e-6, 1e-2, 0.5, 1),
+  guess: fc.option(fc.integer({ min: -15, max: 15 }), { nil: null }),
+  bounds: fc.boolean(),
+  copy: fc.boolean(),
+});
+
+describe("lossScaleWindow searches", () => {
+  it("give the window of the definition (edges and the tensors that set them)", () => {
+    fc.assert(
+      fc.property(fc.array(shape, { minLength: 1, maxLength: 12 }), (shapes) => {
+        const tensors = curves(shapes);
+        const w = lossScaleWindow(tensors, OPTIONS);
+        const d = directWindow(tensors, OPTIONS);
+        expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+      }),
+      { numRuns: 400 },
+    );
+  });
+
+  it("gives the definition's window for many alike tensors, where every bound is loose", () => {
+    // a deep stack: hundreds of tensors whose curves differ by a hair, bounds [0, 1] around each
+    const tensors: ScaledTensorCurves[] = Array.from({ length: 300 }, (_, i) => {
+      const overflowRisk = (k: number) => logistic((k - 3 - i * 1e-3) * 2);
+      const flushedEnergy = (k: number) => logistic((-4 + i * 1e-3 - k) * 2);
+      return {
+        id: `layer${i}`,
+        overflowRisk,
+        flushedEnergy,
+        overflowRiskBounds: (k: number) => [0, Math.min(1, overflowRisk(k) * 1e6)] as const,
+        flushedEnergyBounds: (k: number) => [flushedEnergy(k) / 2, 1] as const,
+        edgeGuessesLog2: { overflow: 0, flush: 0 },
+      };
+    });
+    const w = lossScaleWindow(tensors, OPTIONS);
+    const d = directWindow(tensors, OPTIONS);
+    expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+    // the most flush-prone tensor is the last one (its curve sits furthest right), the most overflow-prone the first
+    expect([w.lowerEdgeSetBy, w.upperEdgeSetBy]).toEqual(["layer299", "layer0"]);
+  });
+});
