@@ -18,9 +18,9 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
-import { tensorFormatRisk, tensorStatistics, worstVerdict, type TensorFormatRisk, type TensorStatistics } from "./tensor.js";
-import type { Finding, HazardCheck, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { judge } from "./verdict.js";
+import { scaledTensor, scaledTensorRisk, worstVerdict, type TensorFormatRisk, type TensorStatistics } from "./tensor.js";
+import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
 
 /** Options of `check` and {@link judgePrediction}. */
@@ -216,25 +216,41 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const formats = judgedFormats(plan, options);
   const plans = new Map(formats.map((format) => [format, planFor(plan, format)] as const));
 
-  const tensors: TensorCheck[] = prediction.tensors.map((tensor) => {
-    const statistics = tensorStatistics(tensor, lossScale.value, thresholds);
-    const risks = formats.flatMap((format) => {
-      const evaluated = plans.get(format) ?? plan;
-      // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
-      // FP32); the loss-value hazard covers a loss kept in the activation format
-      const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
-      const judged = evaluated[entry] === format;
-      if (!judged && !options.everyFormat) return [];
-      return [
-        tensorFormatRisk(tensor, limitsFor(evaluated, format), statistics, {
-          judged,
-          perTensorScaling: FORMATS[format].bits === 8 && evaluated.scaling !== "none",
-          blockScaling: FORMATS[format].bits === 8 && evaluated.scaling === "block" ? blockScaledRiskCached(FORMATS[format]) : null,
-          thresholds,
-        }),
-      ];
-    });
+  // per judged format, what every tensor's judgement in it shares: the plan it is judged under, its range, its scaling
+  const settings = formats.map((format) => {
+    const evaluated = plans.get(format) ?? plan;
+    const eightBit = FORMATS[format].bits === 8;
     return {
+      format,
+      evaluated,
+      limits: limitsFor(evaluated, format),
+      perTensorScaling: eightBit && evaluated.scaling !== "none",
+      blockScaling: eightBit && evaluated.scaling === "block" ? blockScaledRiskCached(FORMATS[format]) : null,
+    };
+  });
+  const everyFormat = options.everyFormat === true;
+
+  const tensors: TensorCheck[] = [];
+  for (const tensor of prediction.tensors) {
+    const scaled = scaledTensor(tensor, lossScale.value, thresholds);
+    // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
+    // FP32); the loss-value hazard covers a loss kept in the activation format
+    const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+    const risks: TensorFormatRisk[] = [];
+    let verdict: Verdict = "fits";
+    for (const setting of settings) {
+      const judged = setting.evaluated[entry] === setting.format;
+      if (!judged && !everyFormat) continue;
+      const risk = scaledTensorRisk(tensor, scaled, setting.limits, {
+        judged,
+        perTensorScaling: setting.perTensorScaling,
+        blockScaling: setting.blockScaling,
+        thresholds,
+      });
+      risks.push(risk);
+      verdict = worseVerdict(verdict, risk.verdict);
+    }
+    const check: TensorCheck = {
       id: tensor.id,
       layer: tensor.layer,
       layerIndex: tensor.layerIndex,
@@ -245,36 +261,57 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
       source: tensor.source,
       start: tensor.start,
       end: tensor.end,
-      ...(options.ledger ? { ledger: tensor.ledger } : {}),
-      statistics,
+      statistics: scaled.statistics,
       risks,
-      verdict: worstVerdict(risks.flatMap((risk) => risk.findings)),
+      verdict,
     };
-  });
+    tensors.push(options.ledger ? withLedger(check, tensor.ledger) : check);
+  }
 
   const sites = [
     ...prediction.hazards.map((site) => ({ site, origin: "prediction" as const })),
     ...trainingSites(spec, prediction).map((site) => ({ site, origin: "training setup" as const })),
   ];
+  // formats judged under the same plan see a site alike: evaluate once per plan, keep each format's evaluations
+  const contexts = new Map<PrecisionPlan, HazardContext>();
+  const formatContexts = settings.map((setting) => {
+    let context = contexts.get(setting.evaluated);
+    if (context === undefined) {
+      context = hazardContext(spec, setting.evaluated, lossScale.value, thresholds);
+      contexts.set(setting.evaluated, context);
+    }
+    return context;
+  });
   const hazards: HazardCheck[] = sites.map(({ site, origin }) => {
     // each judged format sees the site under its own plan; keep the evaluations in that format
-    const perFormat = formats.map((format) =>
-      evaluateHazard(site, hazardContext(spec, plans.get(format) ?? plan, lossScale.value, thresholds), origin),
-    );
+    const checks = new Map<HazardContext, HazardCheck>();
+    const perFormat = formatContexts.map((context) => {
+      let evaluated = checks.get(context);
+      if (evaluated === undefined) {
+        evaluated = evaluateHazard(site, context, origin);
+        checks.set(context, evaluated);
+      }
+      return evaluated;
+    });
     const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, plan, lossScale.value, thresholds), origin);
-    return {
-      ...first,
-      evaluations: perFormat.flatMap((c, i) => c.evaluations.filter((e) => e.format === formats[i])),
-      findings: perFormat.flatMap((c, i) => c.findings.filter((f) => f.format === formats[i])),
-    };
+    const evaluations: HazardEvaluation[] = [];
+    const findings: Finding[] = [];
+    perFormat.forEach((c, i) => {
+      const format = formats[i];
+      for (const e of c.evaluations) if (e.format === format) evaluations.push(e);
+      for (const f of c.findings) if (f.format === format) findings.push(f);
+    });
+    return { ...first, evaluations, findings };
   });
 
-  const formatChecks: FormatCheck[] = formats.map((format) => {
-    const evaluated = plans.get(format) ?? plan;
-    const findings = [
-      ...tensors.flatMap((tensor) => tensor.risks.filter((risk) => risk.format === format).flatMap((risk) => risk.findings)),
-      ...hazards.flatMap((hazard) => hazard.findings.filter((finding) => finding.format === format)),
-    ];
+  const formatChecks: FormatCheck[] = settings.map(({ format, evaluated }) => {
+    const findings: Finding[] = [];
+    let tensorsJudged = 0;
+    for (const tensor of tensors) {
+      for (const risk of tensor.risks) if (risk.format === format) for (const finding of risk.findings) findings.push(finding);
+      if (evaluated[tensor.slot] === format) tensorsJudged++;
+    }
+    for (const hazard of hazards) for (const finding of hazard.findings) if (finding.format === format) findings.push(finding);
     const judgement = judge(findings);
     return {
       format,
@@ -282,7 +319,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
       holds: PLAN_ENTRIES.filter((entry) => entryFormat(evaluated, entry) === format),
       verdict: judgement.verdict,
       reasons: judgement.reasons,
-      tensorsJudged: tensors.filter((tensor) => evaluated[tensor.slot] === format).length,
+      tensorsJudged,
       findings,
     };
   });
@@ -300,6 +337,12 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
     assumptions: [...prediction.assumptions, ...checkAssumptions(plan, formats, plans, lossScale, sites.length > prediction.hazards.length)],
     caution: CAUTION,
   };
+}
+
+// the ledger sits after `end`, where the result's readers (and the JSON output) have always found it
+function withLedger(check: TensorCheck, ledger: LedgerEntry[] | undefined): TensorCheck {
+  const { statistics, risks, verdict, ...head } = check;
+  return { ...head, ledger, statistics, risks, verdict };
 }
 
 function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number, thresholds: RiskThresholds): HazardContext {

@@ -66,11 +66,38 @@ export function tensorStatistics(
   lossScale: number,
   thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
 ): TensorStatistics {
+  return scaledTensor(tensor, lossScale, thresholds).statistics;
+}
+
+/**
+ * A tensor's start and end profiles after its loss-scale factor, with their statistics: what every format's
+ * judgement of the tensor starts from (scaled once, not once per format).
+ */
+export interface ScaledTensor {
+  statistics: TensorStatistics;
+  /** the profiles multiplied by `statistics.factor` */
+  start: MagnitudeProfile;
+  end: MagnitudeProfile;
+  /** whether the end profile describes the same distribution as the start (its numbers are then the start's) */
+  same: boolean;
+}
+
+/** {@link tensorStatistics}, keeping the scaled profiles for {@link scaledTensorRisk}. */
+export function scaledTensor(
+  tensor: TensorPrediction,
+  lossScale: number,
+  thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
+): ScaledTensor {
   const factor = lossScaleFactor(tensor.role, lossScale);
-  const start = profileStatistics(scaleProfile(tensor.start, factor), thresholds);
+  const startProfile = scaleProfile(tensor.start, factor);
+  const startStatistics = profileStatistics(startProfile, thresholds);
   // many tensors end the horizon as they start (weights and activations without growth): compute once
-  const end = sameDistribution(tensor.start, tensor.end) ? start : profileStatistics(scaleProfile(tensor.end, factor), thresholds);
-  return { factor, start, end };
+  if (sameDistribution(tensor.start, tensor.end)) {
+    return { statistics: { factor, start: startStatistics, end: startStatistics }, start: startProfile, end: startProfile, same: true };
+  }
+  const endProfile = scaleProfile(tensor.end, factor);
+  const endStatistics = profileStatistics(endProfile, thresholds);
+  return { statistics: { factor, start: startStatistics, end: endStatistics }, start: startProfile, end: endProfile, same: false };
 }
 
 /**
@@ -102,31 +129,17 @@ export function tensorFormatRisk(
   statistics: TensorStatistics,
   options: TensorRiskOptions,
 ): TensorFormatRisk {
-  const evaluate = (profile: MagnitudeProfile, stats: ProfileStatistics): { risk: ProfileRisk; scaleLog2: number } => {
-    const scaled = scaleProfile(profile, statistics.factor);
-    if (!options.perTensorScaling) return { risk: profileRisk(scaled, limits, stats), scaleLog2: 0 };
-    const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
-    const factor = 2 ** scaleLog2;
-    // scaling is linear, so the statistics scale with it
-    const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
-    const risk = profileRisk(scaleProfile(scaled, factor), limits, rescaled);
-    const block = options.blockScaling;
-    if (!block) return { risk, scaleLog2 };
-    // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
-    // a clipped block maximum is an overflow only when the conversion does not saturate (OCP MX leaves it to the implementation)
-    const nonzero = Math.max(1, profile.elements * (1 - profile.zeroFraction));
-    return {
-      risk: {
-        ...risk,
-        flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
-        flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
-        overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
-      },
-      scaleLog2,
-    };
-  };
-  const start = evaluate(tensor.start, statistics.start);
-  const end = sameDistribution(tensor.start, tensor.end) && statistics.start === statistics.end ? start : evaluate(tensor.end, statistics.end);
+  const start = scaleProfile(tensor.start, statistics.factor);
+  const same = sameDistribution(tensor.start, tensor.end) && statistics.start === statistics.end;
+  const end = same ? start : scaleProfile(tensor.end, statistics.factor);
+  return scaledTensorRisk(tensor, { statistics, start, end, same }, limits, options);
+}
+
+/** {@link tensorFormatRisk} from a {@link scaledTensor}: the same numbers, without scaling the profiles again. */
+export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
+  const { statistics } = scaled;
+  const start = evaluate(tensor.start, scaled.start, statistics.start, limits, options);
+  const end = scaled.same ? start : evaluate(tensor.end, scaled.end, statistics.end, limits, options);
   const worst = worseOf(start.risk, end.risk);
   const findings = options.judged ? tensorFindings(tensor, limits, worst, options) : [];
   return {
@@ -138,6 +151,36 @@ export function tensorFormatRisk(
     worst,
     verdict: worstVerdict(findings),
     findings,
+  };
+}
+
+// One profile (`scaled`: the predicted `profile` times the loss-scale factor) against one format.
+function evaluate(
+  profile: MagnitudeProfile,
+  scaled: MagnitudeProfile,
+  stats: ProfileStatistics,
+  limits: RangeLimits,
+  options: TensorRiskOptions,
+): { risk: ProfileRisk; scaleLog2: number } {
+  if (!options.perTensorScaling) return { risk: profileRisk(scaled, limits, stats), scaleLog2: 0 };
+  const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
+  const factor = 2 ** scaleLog2;
+  // scaling is linear, so the statistics scale with it
+  const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
+  const risk = profileRisk(scaleProfile(scaled, factor), limits, rescaled);
+  const block = options.blockScaling;
+  if (!block) return { risk, scaleLog2 };
+  // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
+  // a clipped block maximum is an overflow only when the conversion does not saturate (OCP MX leaves it to the implementation)
+  const nonzero = Math.max(1, profile.elements * (1 - profile.zeroFraction));
+  return {
+    risk: {
+      ...risk,
+      flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
+      flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
+      overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
+    },
+    scaleLog2,
   };
 }
 
@@ -193,75 +236,89 @@ function tensorFindings(
 ): Finding[] {
   const t = options.thresholds;
   const findings: Finding[] = [];
-  const base = { format: limits.format, subject: tensor.id, source: "tensor" as const };
+  const format = limits.format;
+  const subject = tensor.id;
+  // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence)
   const overflow = grade(worst.overflowRisk, t.overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
-    const verb = limits.saturates ? "saturates" : "overflows";
+    const threshold = overflow === "fails" ? t.overflowFails : t.overflowAtRisk;
     findings.push({
-      ...base,
+      format,
+      subject,
+      source: "tensor",
       kind: limits.saturates ? "saturation" : "overflow",
       severity: overflow,
       value: worst.overflowRisk,
-      threshold: overflow === "fails" ? t.overflowFails : t.overflowAtRisk,
+      threshold,
       at: worst.overflowAt,
       sentence:
-        `${tensor.id} ${verb} ${limits.format} with probability ${plainNumber(worst.overflowRisk)} per step ` +
-        `${when(worst.overflowAt)} (limit ${plainNumber(overflow === "fails" ? t.overflowFails : t.overflowAtRisk)}).`,
+        `${subject} ${limits.saturates ? "saturates" : "overflows"} ${format} with probability ${plainNumber(worst.overflowRisk)} per step ` +
+        `${when(worst.overflowAt)} (limit ${plainNumber(threshold)}).`,
     });
   } else if (!options.perTensorScaling && worst.headroom !== null && worst.headroom < t.headroomAtRisk) {
     findings.push({
-      ...base,
+      format,
+      subject,
+      source: "tensor",
       kind: "little-headroom",
       severity: "at-risk",
       value: worst.headroom,
       threshold: t.headroomAtRisk,
       at: worst.overflowAt,
       sentence:
-        `${tensor.id} has ${binades(worst.headroom)} of headroom in ${limits.format} ${when(worst.overflowAt)}, ` +
+        `${subject} has ${binades(worst.headroom)} of headroom in ${format} ${when(worst.overflowAt)}, ` +
         `so a factor ${plainNumber(2 ** Math.max(0, worst.headroom))} of growth the prediction misses would overflow it.`,
     });
   }
   if (GRADIENT_ROLES.includes(tensor.role)) {
     const energy = grade(worst.flushedEnergy, t.energyAtRisk, t.energyFails);
     if (energy !== null) {
+      const threshold = energy === "fails" ? t.energyFails : t.energyAtRisk;
       findings.push({
-        ...base,
+        format,
+        subject,
+        source: "tensor",
         kind: "gradient-energy-flushed",
         severity: energy,
         value: worst.flushedEnergy,
-        threshold: energy === "fails" ? t.energyFails : t.energyAtRisk,
+        threshold,
         at: worst.flushAt,
         sentence:
-          `${tensor.id} loses ${percent(worst.flushedEnergy)} of its squared norm to zero in ${limits.format} ` +
-          `${when(worst.flushAt)} (limit ${percent(energy === "fails" ? t.energyFails : t.energyAtRisk)}).`,
+          `${subject} loses ${percent(worst.flushedEnergy)} of its squared norm to zero in ${format} ` +
+          `${when(worst.flushAt)} (limit ${percent(threshold)}).`,
       });
     }
   }
   const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
+    const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;
     findings.push({
-      ...base,
+      format,
+      subject,
+      source: "tensor",
       kind: "flushed-values",
       severity: flushed,
       value: worst.flushedFraction,
-      threshold: flushed === "fails" ? t.flushedFails : t.flushedAtRisk,
+      threshold,
       at: worst.flushAt,
       sentence:
-        `${percent(worst.flushedFraction)} of the nonzero elements of ${tensor.id} round to zero in ` +
-        `${limits.format} ${when(worst.flushAt)} (limit ${percent(flushed === "fails" ? t.flushedFails : t.flushedAtRisk)}).`,
+        `${percent(worst.flushedFraction)} of the nonzero elements of ${subject} round to zero in ` +
+        `${format} ${when(worst.flushAt)} (limit ${percent(threshold)}).`,
     });
   }
   if (worst.subnormalFraction > t.subnormalAtRisk) {
     findings.push({
-      ...base,
+      format,
+      subject,
+      source: "tensor",
       kind: "subnormal-values",
       severity: "at-risk",
       value: worst.subnormalFraction,
       threshold: t.subnormalAtRisk,
       at: worst.flushAt,
       sentence:
-        `${percent(worst.subnormalFraction)} of the nonzero elements of ${tensor.id} are subnormal in ` +
-        `${limits.format}, with fewer significant bits (limit ${percent(t.subnormalAtRisk)}).`,
+        `${percent(worst.subnormalFraction)} of the nonzero elements of ${subject} are subnormal in ` +
+        `${format}, with fewer significant bits (limit ${percent(t.subnormalAtRisk)}).`,
     });
   }
   return findings;

@@ -8,9 +8,74 @@ export function plainNumber(x: number): string {
   if (!Number.isFinite(x)) return x > 0 ? "infinity" : x < 0 ? "-infinity" : "not a number";
   if (x === 0) return "0";
   const magnitude = Math.abs(x);
-  if (magnitude >= 1e-3 && magnitude < 1e6) {
-    return String(Number(x.toPrecision(3)));
+  const plain = magnitude >= 1e-3 && magnitude < 1e6;
+  const n = threeDigits(magnitude);
+  if (n === 0) return slowPlainNumber(x, plain);
+  const sign = x < 0 ? "-" : "";
+  const e = digitsExponent;
+  // n·10^(e−2) written from its digits, trailing zeros dropped: the shortest form of the double nearest it, which
+  // is what String(Number(x.toPrecision(3))) gives (no shorter decimal rounds to that double)
+  if (!plain) return `${sign}${MANTISSA[n]}e${e}`;
+  if (e >= 2) return sign + String(n * (POW10[e - 2] as number));
+  if (e === 1) return sign + (TENTHS[n] as string);
+  if (e === 0) return sign + (MANTISSA[n] as string);
+  return `${sign}0.${"0".repeat(-e - 1)}${STRIPPED[n]}`;
+}
+
+// for n = 100 … 999: its digits without trailing zeros ("12" for 120), as d.dd ("1.2") and as dd.d ("12")
+const STRIPPED: string[] = [];
+const MANTISSA: string[] = [];
+const TENTHS: string[] = [];
+for (let n = 100; n < 1000; n++) {
+  const digits = String(n).replace(/0+$/, "");
+  STRIPPED[n] = digits;
+  MANTISSA[n] = digits.length === 1 ? digits : `${digits[0]}.${digits.slice(1)}`;
+  TENTHS[n] = digits.length <= 2 ? String(n / 10) : `${digits.slice(0, 2)}.${digits[2]}`;
+}
+
+// 10^0 … 10^330, correctly rounded (exact up to 10^22)
+const POW10: readonly number[] = Array.from({ length: 331 }, (_, k) => Number(`1e${k}`));
+
+// the decimal exponent of the last threeDigits result (a second return value, without an array per call)
+let digitsExponent = 0;
+
+/**
+ * The three significant digits n (100 ≤ n ≤ 999) of a positive finite number, its decimal exponent left in
+ * digitsExponent, rounded to nearest with ties away from zero as Number.prototype.toPrecision(3) rounds
+ * (ECMA-262 §21.1.3.5); 0 when the arithmetic below cannot decide that rounding (near a tie, at a decade's edge,
+ * or outside 10^±300).
+ */
+function threeDigits(magnitude: number): number {
+  const e = Math.floor(Math.log10(magnitude));
+  if (!(e > -300 && e < 300)) return 0;
+  // one rounding in the scaling, another in 10^k for |k| > 22: relative error below 3·2^-53, far inside the margin
+  const k = 2 - e;
+  const scaled = k >= 0 ? magnitude * pow10(k) : magnitude / pow10(-k);
+  if (!(scaled >= 100.000001 && scaled < 999.999999)) {
+    if (!(scaled >= 999.5000001 && scaled < 1000.4999999)) return 0;
+    // rounds up into the next decade: 1.00e(e+1)
+    digitsExponent = e + 1;
+    return 100;
   }
+  const floor = Math.floor(scaled);
+  const fraction = scaled - floor;
+  if (Math.abs(fraction - 0.5) < 1e-6) return 0;
+  const n = fraction > 0.5 ? floor + 1 : floor;
+  if (n === 1000) {
+    digitsExponent = e + 1;
+    return 100;
+  }
+  digitsExponent = e;
+  return n;
+}
+
+function pow10(k: number): number {
+  return POW10[k] as number;
+}
+
+// the direct formatting, for the cases threeDigits leaves undecided
+function slowPlainNumber(x: number, plain: boolean): string {
+  if (plain) return String(Number(x.toPrecision(3)));
   const [mantissa, exponent] = x.toExponential(2).split("e");
   return `${String(Number(mantissa))}e${Number(exponent)}`;
 }

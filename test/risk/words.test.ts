@@ -1,0 +1,84 @@
+import fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import { binades, percent, plainNumber, scaleWords } from "../../src/risk/words.js";
+
+// The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
+// (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
+function direct(x: number): string {
+  if (!Number.isFinite(x)) return x > 0 ? "infinity" : x < 0 ? "-infinity" : "not a number";
+  if (x === 0) return "0";
+  const magnitude = Math.abs(x);
+  if (magnitude >= 1e-3 && magnitude < 1e6) return String(Number(x.toPrecision(3)));
+  const [mantissa, exponent] = x.toExponential(2).split("e");
+  return `${String(Number(mantissa))}e${Number(exponent)}`;
+}
+
+describe("plainNumber", () => {
+  it("reads as three significant digits (examples, ECMA-262 rounding)", () => {
+    expect(plainNumber(0.000123)).toBe("1.23e-4");
+    expect(plainNumber(0.0123)).toBe("0.0123");
+    expect(plainNumber(1)).toBe("1");
+    expect(plainNumber(65504)).toBe("65500");
+    expect(plainNumber(999999)).toBe("1000000");
+    expect(plainNumber(1e6)).toBe("1e6");
+    expect(plainNumber(-2.5e-8)).toBe("-2.5e-8");
+    expect(plainNumber(2 ** -24)).toBe("5.96e-8");
+    expect(plainNumber(Infinity)).toBe("infinity");
+    expect(plainNumber(-Infinity)).toBe("-infinity");
+    expect(plainNumber(Number.NaN)).toBe("not a number");
+    expect(plainNumber(0)).toBe("0");
+    expect(plainNumber(-0)).toBe("0");
+  });
+
+  it("agrees with toPrecision/toExponential on any double", () => {
+    fc.assert(
+      fc.property(fc.double({ noNaN: true }), (x) => plainNumber(x) === direct(x)),
+      { numRuns: 20_000 },
+    );
+  });
+
+  it("agrees on decades, ties and their neighbours", () => {
+    const cases: number[] = [Number.MIN_VALUE, Number.MAX_VALUE, 2 ** -1074 * 3, 2 ** -1022, 1e-300, 1e300, 1e-301, 9.995e299];
+    for (let e = -320; e <= 308; e++) {
+      for (const n of [1, 9.99, 9.995, 9.9949999, 9.9950001, 1.005, 1.115, 1.235, 2.675, 5, 9.9999999, 1.0000001]) {
+        const x = Number(`${n}e${e}`);
+        for (const y of [x, nextUp(x), nextDown(x)]) cases.push(y, -y);
+      }
+    }
+    for (let n = 1000; n < 10000; n++) cases.push(n / 10, n / 1e6, (n + 0.5) / 1e4, n * 1e5 + 50);
+    const differing = cases.filter((x) => plainNumber(x) !== direct(x));
+    expect(differing).toEqual([]);
+  });
+
+  it("agrees on three-digit ties in every decade", () => {
+    fc.assert(
+      fc.property(fc.integer({ min: 1000, max: 9999 }), fc.integer({ min: -310, max: 305 }), (n, e) => {
+        const x = Number(`${n}5e${e}`);
+        return plainNumber(x) === direct(x) && plainNumber(-x) === direct(-x);
+      }),
+      { numRuns: 20_000 },
+    );
+  });
+});
+
+describe("other wording", () => {
+  it("percent, binades and scales", () => {
+    expect(percent(0.0123)).toBe("1.23%");
+    expect(binades(3.24)).toBe("3.2 binades");
+    expect(binades(1)).toBe("1.0 binade");
+    expect(scaleWords(131072)).toBe("2^17");
+    expect(scaleWords(3)).toBe("3");
+  });
+});
+
+function nextUp(x: number): number {
+  const view = new DataView(new ArrayBuffer(8));
+  view.setFloat64(0, x);
+  const bits = view.getBigUint64(0);
+  view.setBigUint64(0, x >= 0 ? bits + 1n : bits - 1n);
+  return view.getFloat64(0);
+}
+
+function nextDown(x: number): number {
+  return -nextUp(-x);
+}
