@@ -168,3 +168,64 @@ describe("optimizer constants", () => {
     expect(hazardVerdict(evaluateHazard(adam(gradient), context()))).toBe("fits");
   });
 });
+
+describe("the start and the end of the horizon", () => {
+  // each evaluation reports the worse of the two (higher verdict, then higher value): the same number as judging
+  // the worse side on its own, whichever way the cheap bounds settle the comparison
+  const alone = (input: MagnitudeProfile, output: MagnitudeProfile | undefined, ctx: HazardContext) =>
+    evaluateHazard(site({ kind: "gradient-sum", terms: 4, input, ...(output ? { output } : {}) }), ctx);
+  const ctx = context({ workers: 4, workerGradients: "average" });
+  const cases: [string, MagnitudeProfile, MagnitudeProfile][] = [
+    ["gradients that explode by the end", profile({ rms: 1e-3, log2Spread: 2, elements: 65536 }), profile({ rms: 1e17, log2Spread: 2, elements: 65536 })],
+    ["gradients that shrink by the end", profile({ rms: 1e3, log2Spread: 1.5, elements: 65536 }), profile({ rms: 1e-6, log2Spread: 1.5, elements: 65536 })],
+    ["gradients that barely move", profile({ rms: 3000, log2Spread: 0.5, elements: 4096 }), profile({ rms: 3100, log2Spread: 0.5, elements: 4096 })],
+    ["gradients without a spread", profile({ rms: 1e-7, elements: 4096 }), profile({ rms: 2e-7, elements: 4096 })],
+  ];
+  for (const [name, start, end] of cases) {
+    it(`${name}: each evaluation is the worse side's, judged alone`, () => {
+      const both = evaluateHazard(site({ kind: "gradient-sum", terms: 4, input: start, end: { input: end } }), ctx);
+      const first = alone(start, undefined, ctx);
+      const second = alone(end, undefined, ctx);
+      expect(both.evaluations).toHaveLength(first.evaluations.length);
+      both.evaluations.forEach((evaluation, i) => {
+        const a = first.evaluations[i]!;
+        const b = second.evaluations[i]!;
+        const rank = { fits: 0, "at-risk": 1, fails: 2 };
+        const endWorse = rank[b.verdict] > rank[a.verdict] || (rank[b.verdict] === rank[a.verdict] && b.value > a.value);
+        const expected = endWorse ? b : a;
+        expect(evaluation.at).toBe(endWorse ? "end" : "start");
+        expect(evaluation.value).toBe(expected.value);
+        expect(evaluation.verdict).toBe(expected.verdict);
+        expect(evaluation.sentence).toBe(expected.sentence);
+      });
+    });
+  }
+});
+
+describe("one site judged under several plans", () => {
+  const norm = (): HazardSite =>
+    site({ kind: "norm-sum-of-squares", terms: 4096, input: profile({ rms: 3.9, log2Spread: 0.3, elements: 4096 * 512 }) });
+  const plans = [context({ accumulate: BINARY16 }), context({ activations: BINARY32 }), context({ accumulate: BINARY16, lossScale: 8 })];
+
+  it("gives, plan after plan, what a fresh copy of the site gives under each plan alone", () => {
+    const shared = norm();
+    for (const plan of [...plans, ...plans]) expect(evaluateHazard(shared, plan)).toEqual(evaluateHazard(norm(), plan));
+  });
+
+  it("follows a change to the site's numbers made in place", () => {
+    const shared = norm();
+    const before = evaluateHazard(shared, plans[0]!);
+    shared.input.rms = 4.2;
+    const after = evaluateHazard(shared, plans[0]!);
+    expect(after).toEqual(evaluateHazard({ ...norm(), input: { ...norm().input, rms: 4.2 } }, plans[0]!));
+    expect(after.evaluations[0]?.value).not.toBe(before.evaluations[0]?.value);
+  });
+
+  it("hands each call its own evaluation objects", () => {
+    const shared = norm();
+    const first = evaluateHazard(shared, plans[1]!);
+    const second = evaluateHazard(shared, plans[1]!);
+    expect(second.evaluations[0]).toEqual(first.evaluations[0]);
+    expect(second.evaluations[0]).not.toBe(first.evaluations[0]);
+  });
+});
