@@ -50,7 +50,7 @@ interface TensorRecord {
 }
 
 interface PhaseResult {
-  tensors: TensorRecord[];
+  tensors: PredictedTensor[];
   hazards: Omit<HazardSite, "end">[];
 }
 
@@ -109,7 +109,10 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
 }
 
 class Phase {
-  readonly tensors: TensorRecord[] = [];
+  /** the start pass's tensors; the end pass fills in their `end` profiles in the same order */
+  readonly tensors: PredictedTensor[];
+  /** tensors emitted so far by the end pass */
+  private emitted = 0;
   readonly hazards: Omit<HazardSite, "end">[] = [];
   /** each layer's stash by layer index */
   readonly stash: unknown[] = [];
@@ -122,7 +125,9 @@ class Phase {
     readonly phase: "start" | "end",
     readonly build: boolean,
     readonly lossScale: number,
+    startTensors?: PredictedTensor[],
   ) {
+    this.tensors = startTensors ?? [];
     const growth = phase === "end" ? spec.training.horizon.weightGrowth : 1;
     const growth2 = growth * growth;
     this.ctx = {
@@ -156,8 +161,22 @@ class Phase {
     return this.#sumDetail;
   }
 
+  /** The start pass creates the tensor; the end pass (same operations, same order) sets its end profile. */
   emit(record: TensorRecord): void {
-    this.tensors.push(record);
+    if (this.phase === "start") {
+      this.tensors.push(new PredictedTensor(record));
+      return;
+    }
+    const a = this.tensors[this.emitted++];
+    if (a === undefined || record.layer !== a.layer || record.role !== a.role) throw new RangeError(`internal: start and end passes disagree at tensor ${a?.id ?? record.layer}`);
+    a.end = record.profile;
+  }
+
+  /** Throws unless the end pass met every tensor of the start pass. */
+  finish(): void {
+    if (this.phase === "end" && this.emitted !== this.tensors.length) {
+      throw new RangeError(`internal: start and end passes disagree at tensor ${this.tensors[this.emitted]?.id ?? ""}`);
+    }
   }
 
   hazard(layer: GraphLayer, h: OpHazard, index: number): void {
@@ -195,8 +214,10 @@ class Phase {
       }
       let node: LedgerNode | null = null;
       if (this.build && profile.rms > 0) {
-        const rule = w.init === undefined ? (w.distribution === "constant" ? "constant gain" : "zero-initialised") : `${w.init.kind} initialisation`;
-        node = chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule: `${rule}: var = ${variance.toPrecision(4)}`, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true);
+        const init = w.init;
+        const constant = w.distribution === "constant";
+        const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${variance.toPrecision(4)}`;
+        node = chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true);
       }
       this.emit({
         id: `${layer.name}/weight${w.name === "weight" ? "" : `:${w.name}`}`,
@@ -338,9 +359,11 @@ class Phase {
     const id = this.build ? `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}` : "";
     const factors: Factor[] = [];
     if (this.build) {
+      // the wording keeps only the rule, not the whole moment, alive until the ledger is read
+      const wgRule = wg.rule;
       factors.push({
         ratio: outputQ > 0 ? wg.q / outputQ : 0,
-        rule: () => `weight gradient: ${textOf(wg.rule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
+        rule: () => `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
         source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
       });
       if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: `${A} accumulation step(s) × ${W} worker(s), gradients ${training.workerGradients}d`, source: "independent sums add in second moment (common practice)" });
@@ -380,8 +403,8 @@ function lossValueMoments(value: number, W: number): { q: number; zeroFraction: 
 }
 
 /** Run one phase: forward, loss, backward. */
-function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build: boolean, lossScale: number): PhaseResult {
-  const p = new Phase(graph, spec, phase, build, lossScale);
+function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build: boolean, lossScale: number, startTensors?: PredictedTensor[]): PhaseResult {
+  const p = new Phase(graph, spec, phase, build, lossScale, startTensors);
   const input = spec.input;
   let signal: Signal;
   let node: LedgerNode | null = null;
@@ -468,6 +491,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     });
   }
   p.backward(graph.layers, seed.gradient, seedNode, true);
+  p.finish();
   return { tensors: p.tensors, hazards: p.hazards };
 }
 
@@ -510,7 +534,8 @@ class PredictedTensor {
   #node: LedgerNode | null;
   #cached: LedgerEntry[] | undefined;
 
-  constructor(a: TensorRecord, end: MagnitudeProfile) {
+  /** `end` starts as the start profile; the end pass replaces it. */
+  constructor(a: TensorRecord) {
     this.id = a.id;
     this.layer = a.layer;
     this.layerIndex = a.layerIndex;
@@ -519,7 +544,7 @@ class PredictedTensor {
     this.slot = a.slot;
     this.shape = a.shape;
     this.start = a.profile;
-    this.end = end;
+    this.end = a.profile;
     Object.defineProperty(this, "ledger", LEDGER_PROPERTY);
     this.source = "predicted";
     this.#node = a.ledger;
@@ -556,15 +581,8 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
   const lossScale = options.lossScale ?? 1;
   if (!(lossScale > 0) || !Number.isFinite(lossScale)) throw new RangeError(`lossScale must be a finite number > 0, got ${lossScale}`);
   const start = runPhase(graph, spec, "start", true, lossScale);
-  const end = runPhase(graph, spec, "end", false, lossScale);
-  const tensors: TensorPrediction[] = [];
-  for (let i = 0; i < start.tensors.length; i++) {
-    const a = start.tensors[i] as TensorRecord;
-    const b = end.tensors[i];
-    if (b === undefined || b.layer !== a.layer || b.role !== a.role) throw new RangeError(`internal: start and end passes disagree at tensor ${a.id}`);
-    const tensor: TensorPrediction = new PredictedTensor(a, b.profile);
-    tensors.push(tensor);
-  }
+  const end = runPhase(graph, spec, "end", false, lossScale, start.tensors);
+  const tensors: TensorPrediction[] = start.tensors;
   // both passes visit the same operations in the same order; the start pass's sites are fresh objects, completed in place
   const hazards = start.hazards as HazardSite[];
   for (let i = 0; i < hazards.length; i++) {

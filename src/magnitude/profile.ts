@@ -71,12 +71,32 @@ export function logNormalMedianLog2(rms: number, spread: number): number {
 
 /** Expected largest element magnitude of n nonzero elements. */
 export function expectedMaxElement(m: Moments, rms: number, n: number): number {
+  return maxElementOf(m.shape, m.tail, m.elementLog2Spread, m.bound, rms, n);
+}
+
+/**
+ * expectedMaxAbsGaussian by element count: tensors of one network share a few counts, and each profile needs it, so
+ * the last few hundred are remembered (the same function of n, so the same value).
+ */
+const gaussianMaxCache = new Map<number, number>();
+
+function gaussianMaxOf(n: number): number {
+  let max = gaussianMaxCache.get(n);
+  if (max === undefined) {
+    max = expectedMaxAbsGaussian(n);
+    if (gaussianMaxCache.size >= 512) gaussianMaxCache.clear();
+    gaussianMaxCache.set(n, max);
+  }
+  return max;
+}
+
+function maxElementOf(shape: OpElementShape, tail: TailKind | undefined, elementLog2Spread: number | undefined, bound: number | undefined, rms: number, n: number): number {
   if (!(rms > 0) || n < 1) return 0;
   let max: number;
-  switch (m.shape) {
+  switch (shape) {
     case "gaussian":
     case "half-gaussian":
-      max = rms * (m.tail === "product" ? expectedMaxAbsProduct(n) : expectedMaxAbsGaussian(n));
+      max = rms * (tail === "product" ? expectedMaxAbsProduct(n) : gaussianMaxOf(n));
       break;
     case "uniform":
       max = rms * Math.sqrt(3) * (n / (n + 1));
@@ -85,15 +105,15 @@ export function expectedMaxElement(m: Moments, rms: number, n: number): number {
       max = rms;
       break;
     case "bounded":
-      max = rms * expectedMaxAbsGaussian(n);
+      max = rms * gaussianMaxOf(n);
       break;
     case "log-normal": {
-      const spread = m.elementLog2Spread ?? 0;
+      const spread = elementLog2Spread ?? 0;
       max = Math.pow(2, logNormalMedianLog2(rms, spread) + spread * expectedMaxNormal(n));
       break;
     }
   }
-  return m.bound !== undefined ? Math.min(max, m.bound) : max;
+  return bound !== undefined ? Math.min(max, bound) : max;
 }
 
 /**
@@ -103,24 +123,31 @@ export function expectedMaxElement(m: Moments, rms: number, n: number): number {
  * √V/(2 ln 2).
  */
 export function profileOf(m: Moments, elements: number): MagnitudeProfile {
+  // each field is read once: the moments come in many object shapes, so every read is a slow lookup
+  const q = m.q;
+  const bound = m.bound;
+  const shape = m.shape;
   const zeroFraction = Math.min(Math.max(m.zeroFraction, 0), 1);
   const keep = 1 - zeroFraction;
   const logVar = Math.max(m.logVar, 0);
-  const meanRms = keep > 0 && m.q > 0 ? Math.sqrt(m.q / keep) : 0;
+  const meanRms = keep > 0 && q > 0 ? Math.sqrt(q / keep) : 0;
   let rms = meanRms * Math.exp(-logVar / 4);
-  if (m.bound !== undefined && rms > m.bound) rms = m.bound;
+  if (bound !== undefined && rms > bound) rms = bound;
+  const elementLog2Spread = m.elementLog2Spread;
   const profile: MagnitudeProfile = {
     elements,
     zeroFraction,
-    shape: m.shape,
+    shape,
     rms,
     log2Spread: Math.sqrt(logVar) / (2 * Math.LN2),
-    meanSquare: m.q,
-    maxElement: expectedMaxElement(m, rms, elements * keep),
+    meanSquare: q,
+    maxElement: maxElementOf(shape, m.tail, elementLog2Spread, bound, rms, elements * keep),
   };
-  if (m.bound !== undefined) profile.bound = m.bound;
-  if (m.shape === "log-normal") profile.elementLog2Spread = m.elementLog2Spread ?? 0;
-  if (m.shared !== undefined && m.shared !== 0 && m.q > 0) profile.sampleCorrelation = Math.min(Math.max(m.shared / m.q, -1), 1);
-  if (m.positionCorrelation !== undefined && m.positionCorrelation !== 0) profile.positionCorrelation = m.positionCorrelation;
+  if (bound !== undefined) profile.bound = bound;
+  if (shape === "log-normal") profile.elementLog2Spread = elementLog2Spread ?? 0;
+  const shared = m.shared;
+  if (shared !== undefined && shared !== 0 && q > 0) profile.sampleCorrelation = Math.min(Math.max(shared / q, -1), 1);
+  const positionCorrelation = m.positionCorrelation;
+  if (positionCorrelation !== undefined && positionCorrelation !== 0) profile.positionCorrelation = positionCorrelation;
   return profile;
 }
