@@ -303,15 +303,16 @@ class Phase {
       let branchResults = {};
       if (layer.branch !== undefined) {
         const seed = residualBranchSeed(layer, gradient);
-        delete seed.gradient.windowMaximum;
-        delete seed.gradient.reluGated;
+        // (present only with a value: a delete of an absent key is skipped, for speed)
+        if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
+        if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
         const branchGradient = this.backward(layer.branch, seed.gradient, chain(current, layer.name, [seed.factor], this.build), false);
         branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
       }
       const result = rule.backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // only the rectifier right before a max-pool may use the arg-max position
-      if (result.input !== undefined && layer.family !== "max-pool") delete result.input.windowMaximum;
-      if (result.input !== undefined && layer.family !== "activation") delete result.input.reluGated;
+      if (result.input !== undefined && layer.family !== "max-pool" && result.input.windowMaximum !== undefined) delete result.input.windowMaximum;
+      if (result.input !== undefined && layer.family !== "activation" && result.input.reluGated !== undefined) delete result.input.reluGated;
       // rules that do not say otherwise keep the gradient's cross-sample correlation
       if (result.input !== undefined && result.input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) {
         result.input.shared = gradient.shared * (result.input.q / gradient.q);

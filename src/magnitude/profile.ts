@@ -134,20 +134,28 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   let rms = meanRms * Math.exp(-logVar / 4);
   if (bound !== undefined && rms > bound) rms = bound;
   const elementLog2Spread = m.elementLog2Spread;
-  const profile: MagnitudeProfile = {
-    elements,
-    zeroFraction,
-    shape,
-    rms,
-    log2Spread: Math.sqrt(logVar) / (2 * Math.LN2),
-    meanSquare: q,
-    maxElement: maxElementOf(shape, m.tail, elementLog2Spread, bound, rms, elements * keep),
-  };
+  const log2Spread = Math.sqrt(logVar) / (2 * Math.LN2);
+  const maxElement = maxElementOf(shape, m.tail, elementLog2Spread, bound, rms, elements * keep);
+  const shared = m.shared;
+  const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
+  const given = m.positionCorrelation;
+  const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
+  if (bound === undefined && shape !== "log-normal") {
+    // the common profiles, each made whole by one literal (same keys in the same order as below): adding keys one by
+    // one would give every combination its own chain of hidden classes and slow every store and later read
+    if (sampleCorrelation === undefined) {
+      return positionCorrelation === undefined
+        ? { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement }
+        : { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, positionCorrelation };
+    }
+    return positionCorrelation === undefined
+      ? { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, sampleCorrelation }
+      : { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, sampleCorrelation, positionCorrelation };
+  }
+  const profile: MagnitudeProfile = { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement };
   if (bound !== undefined) profile.bound = bound;
   if (shape === "log-normal") profile.elementLog2Spread = elementLog2Spread ?? 0;
-  const shared = m.shared;
-  if (shared !== undefined && shared !== 0 && q > 0) profile.sampleCorrelation = Math.min(Math.max(shared / q, -1), 1);
-  const positionCorrelation = m.positionCorrelation;
-  if (positionCorrelation !== undefined && positionCorrelation !== 0) profile.positionCorrelation = positionCorrelation;
+  if (sampleCorrelation !== undefined) profile.sampleCorrelation = sampleCorrelation;
+  if (positionCorrelation !== undefined) profile.positionCorrelation = positionCorrelation;
   return profile;
 }
