@@ -44,6 +44,23 @@ export interface DynamicScaleModel {
   overflowProbability(scale: number, progress: number): number;
   /** whether the share of gradient energy flushed to zero exceeds the tolerance at this scale */
   flushesTooMuch(scale: number, progress: number): boolean;
+  /**
+   * Optional: bounds on overflowProbability(scale, progress) that can be narrowed until exact. The simulation then
+   * narrows them only as far as each step's random draw needs (a draw far from the probability is decided by
+   * bounds): the same steps overflow as with the exact value, for a fraction of the work.
+   */
+  overflowBounds?(scale: number, progress: number): OverflowBounds;
+}
+
+/** Bounds on an overflow probability, narrowed on request (see {@link DynamicScaleModel.overflowBounds}). */
+export interface OverflowBounds {
+  /** the probability lies in [low, high] */
+  readonly low: number;
+  readonly high: number;
+  /** true once low and high are both the probability itself, exactly as overflowProbability gives it */
+  readonly exact: boolean;
+  /** narrow the bounds (some work each call; exact after finitely many calls) */
+  narrow(): void;
 }
 
 /** One point of the scale's trajectory (a change of scale, plus the first and last step). */
@@ -97,16 +114,16 @@ export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicS
   const horizonPoints = Math.max(1, Math.min(options.horizonPoints ?? 64, steps));
   const maxPoints = Math.max(2, options.maxPoints ?? 400);
 
-  // The model is costly (it integrates over tensors); scales repeat, so evaluate each (scale, horizon point) once.
-  const cache = new Map<string, { overflow: number; flushes: boolean }>();
-  const evaluate = (scale: number, step: number) => {
+  // The model is costly (it integrates over tensors); scales repeat, so evaluate each (scale, horizon point) once,
+  // and each part only when a step needs it (whether it flushes too much only matters on a step that does not overflow)
+  const cache: Map<number, Evaluation>[] = Array.from({ length: horizonPoints }, () => new Map());
+  const evaluate = (scale: number, step: number): Evaluation => {
     const point = Math.min(horizonPoints - 1, Math.floor((step / steps) * horizonPoints));
-    const key = `${scale}|${point}`;
-    let hit = cache.get(key);
+    const atPoint = cache[point]!;
+    let hit = atPoint.get(scale);
     if (!hit) {
-      const progress = horizonPoints === 1 ? 0 : point / (horizonPoints - 1);
-      hit = { overflow: model.overflowProbability(scale, progress), flushes: model.flushesTooMuch(scale, progress) };
-      cache.set(key, hit);
+      hit = new Evaluation(model, scale, horizonPoints === 1 ? 0 : point / (horizonPoints - 1));
+      atPoint.set(scale, hit);
     }
     return hit;
   };
@@ -128,7 +145,7 @@ export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicS
       if (scale < settledLowest) settledLowest = scale;
       if (scale > settledHighest) settledHighest = scale;
     }
-    const overflowed = state.overflow >= 1 || (state.overflow > 0 && random() < state.overflow);
+    const overflowed = state.overflows(random);
     let next = scale;
     if (overflowed) {
       skipped++;
@@ -137,7 +154,7 @@ export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicS
       clean = 0;
       next = Math.max(settings.lowestScale, scale / settings.cutFactor);
     } else {
-      if (state.flushes) flushing++;
+      if (state.flushes()) flushing++;
       clean++;
       if (clean >= settings.cleanStepsBeforeRaise) {
         clean = 0;
@@ -164,6 +181,51 @@ export function simulateDynamicScale(model: DynamicScaleModel, options: DynamicS
     settledHighest,
     settledSkipRate: settledSkips / (steps - half),
   };
+}
+
+// One (scale, horizon point) of the model, its parts computed on first use.
+class Evaluation {
+  private overflow: number | undefined;
+  private bounds: OverflowBounds | undefined;
+  private flushing: boolean | undefined;
+  constructor(
+    private readonly model: DynamicScaleModel,
+    private readonly scale: number,
+    private readonly progress: number,
+  ) {
+    if (model.overflowBounds) this.bounds = model.overflowBounds(scale, progress);
+    else this.overflow = model.overflowProbability(scale, progress);
+  }
+
+  // Whether this step overflows: certainly at probability 1, never at 0, else when a uniform draw falls below the
+  // probability (one draw exactly when the probability lies strictly between 0 and 1). With bounds, each question
+  // is answered as soon as the bounds decide it, and by the exact value otherwise: the same answers, the same draws.
+  overflows(random: () => number): boolean {
+    const b = this.bounds;
+    if (b === undefined) {
+      const p = this.overflow as number;
+      return p >= 1 || (p > 0 && random() < p);
+    }
+    if (decide(b, (v) => v >= 1, (low, high) => (low >= 1 ? true : high < 1 ? false : undefined))) return true;
+    if (!decide(b, (v) => v > 0, (low, high) => (low > 0 ? true : high <= 0 ? false : undefined))) return false;
+    const r = random();
+    return decide(b, (v) => r < v, (low, high) => (r < low ? true : r >= high ? false : undefined));
+  }
+
+  flushes(): boolean {
+    if (this.flushing === undefined) this.flushing = this.model.flushesTooMuch(this.scale, this.progress);
+    return this.flushing;
+  }
+}
+
+// A question about a bounded probability: answered by the bounds when they tell, else after narrowing them.
+function decide(b: OverflowBounds, exact: (value: number) => boolean, byBounds: (low: number, high: number) => boolean | undefined): boolean {
+  for (;;) {
+    if (b.exact) return exact(b.low);
+    const answer = byBounds(b.low, b.high);
+    if (answer !== undefined) return answer;
+    b.narrow();
+  }
 }
 
 function validateSettings(s: DynamicScaleSettings): void {

@@ -6,9 +6,11 @@ import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowExceeds, probabilityAnyAboveBounds } from "../risk/bounds.js";
-import { limitsFor, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
+import { anyOf, normalSf } from "../risk/_math.js";
+import { elementLaw, isConstantLike, isEmpty, nonzeroElements } from "../risk/laws.js";
+import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, type LossScaleCurves, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import { simulateDynamicScale, type DynamicScaleResult, type DynamicScaleSettings } from "./dynamic.js";
+import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
@@ -79,7 +81,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
-  const curves = lossScaleCurves(prediction.tensors, limits);
+  const curves = withTighterBounds(lossScaleCurves(prediction.tensors, limits), prediction.tensors, limits);
   const ids = new Set(curves.map((c) => c.id));
   const gradients = prediction.tensors.filter((t) => ids.has(t.id));
   const window = lossScaleWindow(curves, windowOptions);
@@ -108,8 +110,50 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
+/**
+ * The curves with tighter upper bounds on offer (the segment bounds below, at the worse of the start and end
+ * profiles, as the curves take): the window's searches then integrate only the tensors that come near the budget or
+ * the tolerance. Values and cheap bounds are the curves' own; each exponent's tighter bound is kept.
+ */
+function withTighterBounds(curves: LossScaleCurves[], tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
+  const byId = new Map(tensors.map((t) => [t.id, t] as const));
+  return curves.map((c) => {
+    const tensor = byId.get(c.id);
+    if (tensor === undefined) return c;
+    const { start, end } = tensor;
+    const overflowUppers = new Map<number, number>();
+    const flushUppers = new Map<number, number>();
+    return {
+      id: c.id,
+      edgeGuessesLog2: c.edgeGuessesLog2,
+      overflowRisk: (k) => c.overflowRisk(k),
+      flushedEnergy: (k) => c.flushedEnergy(k),
+      overflowRiskBounds: (k) => c.overflowRiskBounds(k),
+      flushedEnergyBounds: (k) => c.flushedEnergyBounds(k),
+      overflowRiskUpper(k) {
+        let upper = overflowUppers.get(k);
+        if (upper === undefined) {
+          const level = limits.overflowLevel * 2 ** -k;
+          upper = Math.max(probabilityAnyAboveUpper(start, level), probabilityAnyAboveUpper(end, level));
+          overflowUppers.set(k, upper);
+        }
+        return upper;
+      },
+      flushedEnergyUpper(k) {
+        let upper = flushUppers.get(k);
+        if (upper === undefined) {
+          const bound = limits.flushBound * 2 ** -k;
+          upper = Math.max(energyBelowUpper(start, bound), energyBelowUpper(end, bound));
+          flushUppers.set(k, upper);
+        }
+        return upper;
+      },
+    };
+  });
+}
+
 /** Overflow probability per step over all gradient tensors as they drift from their start to their end profiles. */
-function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions) {
+function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, MagnitudeProfile[]>();
   const at = (progress: number): MagnitudeProfile[] => {
@@ -124,20 +168,162 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
   // scale takes), without a scaled copy per scale
   return {
     overflowProbability(scale: number, progress: number) {
-      const level = limits.overflowLevel / scale;
-      let none = 1;
-      for (const p of at(progress)) {
-        // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
-        if (probabilityAnyAboveBounds(p, level)[1] <= 2 ** -54) continue;
-        none *= 1 - probabilityAnyAbove(p, level);
-      }
-      return 1 - none;
+      return new OverflowNarrowing(at(progress), limits.overflowLevel / scale).value();
+    },
+    overflowBounds(scale: number, progress: number) {
+      return new OverflowNarrowing(at(progress), limits.overflowLevel / scale);
     },
     flushesTooMuch(scale: number, progress: number) {
       const bound = limits.flushBound / scale;
       return at(progress).some((p) => energyBelowExceeds(p, bound, options.flushTolerance));
     },
   };
+}
+
+/**
+ * P(any gradient overflows) = 1 − Π (1 − p_i) over the tensors (independent tensors), as bounds narrowed on
+ * request: from the tensors' segment upper bounds, then with the exact p_i of the tensors with the largest upper
+ * bounds, in growing batches; the bounds on the product allow for its rounding. Once every p_i that can move the
+ * product is known, the value is the product in the tensors' order, exactly as {@link OverflowNarrowing.value}
+ * gives it.
+ */
+class OverflowNarrowing implements OverflowBounds {
+  low = 0;
+  high = 1;
+  exact = false;
+  // each tensor's bounds on p_i (equal once integrated)
+  private readonly lows: Float64Array;
+  private readonly highs: Float64Array;
+  private readonly known: Uint8Array;
+  private order: number[] | null = null;
+  private done = 0;
+  private batch = 1;
+
+  constructor(
+    private readonly profiles: readonly MagnitudeProfile[],
+    private readonly level: number,
+  ) {
+    const n = profiles.length;
+    this.lows = new Float64Array(n);
+    this.highs = new Float64Array(n);
+    this.known = new Uint8Array(n);
+  }
+
+  /** The probability itself, every tensor integrated that can move the product. */
+  value(): number {
+    let none = 1;
+    for (let i = 0; i < this.profiles.length; i++) {
+      const p = this.profiles[i]!;
+      let value: number;
+      if (this.known[i] === 1) value = this.lows[i]!;
+      // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
+      else if (this.order !== null && this.highs[i]! <= 2 ** -54) continue;
+      else if (probabilityAnyAboveBounds(p, this.level)[1] <= 2 ** -54) continue;
+      else value = probabilityAnyAbove(p, this.level);
+      none *= 1 - value;
+    }
+    return 1 - none;
+  }
+
+  narrow(): void {
+    if (this.exact) return;
+    if (this.order === null) {
+      // first every tensor's segment upper bound, then integrate the largest first
+      const highs = this.highs;
+      for (let i = 0; i < this.profiles.length; i++) highs[i] = probabilityAnyAboveUpper(this.profiles[i]!, this.level);
+      this.order = [];
+      for (let i = 0; i < highs.length; i++) if (highs[i]! > 2 ** -54) this.order.push(i);
+      this.order.sort((a, b) => highs[b]! - highs[a]! || a - b);
+    } else {
+      const end = Math.min(this.order.length, this.done + this.batch);
+      for (; this.done < end; this.done++) {
+        const i = this.order[this.done]!;
+        const p = probabilityAnyAbove(this.profiles[i]!, this.level);
+        this.lows[i] = p;
+        this.highs[i] = p;
+        this.known[i] = 1;
+      }
+      this.batch *= 2;
+    }
+    if (this.done === this.order.length) {
+      const value = this.value();
+      this.low = value;
+      this.high = value;
+      this.exact = true;
+      return;
+    }
+    this.update();
+  }
+
+  // Bounds on the computed 1 − Π(1 − p_i): the factors at the bounds of each p_i (a factor is 1 unless p_i is above
+  // 2^−54), the products widened for the rounding of up to n + 2 products in any order (each within a relative
+  // 2^−53; Higham 2002, §3.1) and for underflow.
+  private update(): void {
+    let noneHigh = 1;
+    let noneLow = 1;
+    for (let i = 0; i < this.profiles.length; i++) {
+      noneHigh *= 1 - this.lows[i]!;
+      noneLow *= 1 - this.highs[i]!;
+    }
+    const widen = 4 * (this.profiles.length + 2) * 2 ** -53;
+    this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
+    // every factor exactly 1: the product is exactly 1
+    this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
+  }
+}
+
+// Upper bounds on the draw integrals of src/risk/profile.ts by segments of draws, one standard deviation wide:
+// every integrand there is monotone in the draw, so a segment contributes at most its mass times the integrand at
+// its worse end. The segments are visited from the integrand's large end and the visit stops once the integrand has
+// fallen so far that everything beyond adds under a twentieth (bounded by the integrand there times the mass left).
+// The result is multiplied by a factor that covers the difference between the true draw integral and the rule that
+// evaluates it (a positive-weight rule on ±9 standard deviations, or a closed form of the same integral), whose
+// weight on any segment is far within 4 times the segment's mass (checked in test/scale/recommend-bounds.test.ts).
+const RULE_FACTOR = 4;
+const SEGMENT_LIMIT = 9;
+// MASS_ABOVE[j] = P(z > j − 9), j = 0 … 18
+const MASS_ABOVE = Array.from({ length: 2 * SEGMENT_LIMIT + 1 }, (_, j) => normalSf(j - SEGMENT_LIMIT));
+
+// Σ over unit segments of the draws of mass × the integrand at the segment's larger-valued end; `rising`: the
+// integrand grows with the draw (visited from +9 down), else it falls (visited from −9 up).
+function segmentBound(profile: MagnitudeProfile, rising: boolean, f: (r: number) => number): number {
+  const step = 2 ** profile.log2Spread;
+  // beyond ±9 the integrand is at most 1
+  let sum = MASS_ABOVE[2 * SEGMENT_LIMIT]!;
+  let r = profile.rms * 2 ** (profile.log2Spread * (rising ? SEGMENT_LIMIT : -SEGMENT_LIMIT));
+  for (let j = 2 * SEGMENT_LIMIT; j > 0; j--) {
+    const value = f(r);
+    // the segment next to the end just evaluated, toward the small end: mass P(j − 10 < |z| beyond …) by symmetry
+    const mass = MASS_ABOVE[j - 1]! - MASS_ABOVE[j]!;
+    sum += mass * value;
+    // everything further toward the small end: at most the integrand here times the mass there
+    const rest = value * (1 - MASS_ABOVE[j - 1]!);
+    if (rest <= sum / 20 || j === 1) return Math.min(1, RULE_FACTOR * (sum + rest));
+    r = rising ? r / step : r * step;
+  }
+  return 1;
+}
+
+/**
+ * An upper bound on {@link probabilityAnyAbove}(profile, t) from its integrand at a few draws: far tighter than
+ * the extreme-draw bound where the probability is small, for a fraction of the integral's evaluations; exact where
+ * the probability is a closed form.
+ */
+export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): number {
+  if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return probabilityAnyAbove(profile, t);
+  const law = elementLaw(profile);
+  const n = nonzeroElements(profile);
+  return segmentBound(profile, true, (r) => anyOf(law.above(r, t), n));
+}
+
+/**
+ * An upper bound on {@link energyBelow}(profile, t) from its integrand at a few draws (the share falls as the draw
+ * rises), as {@link probabilityAnyAboveUpper}: it settles most comparisons of a small share with a tolerance.
+ */
+export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
+  if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return energyBelow(profile, t);
+  const law = elementLaw(profile);
+  return segmentBound(profile, false, (r) => law.energyBelow(r, t));
 }
 
 function binades(n: number): string {

@@ -18,6 +18,10 @@ export interface ScaledTensorCurves {
   overflowRiskBounds?(log2Scale: number): readonly [number, number];
   /** optional cheap bounds [low, high] on flushedEnergy: the search then integrates only where they do not decide */
   flushedEnergyBounds?(log2Scale: number): readonly [number, number];
+  /** optional upper bound on overflowRisk tighter than the bounds', at more cost: asked for before integrating */
+  overflowRiskUpper?(log2Scale: number): number;
+  /** optional upper bound on flushedEnergy tighter than the bounds', at more cost: asked for before integrating */
+  flushedEnergyUpper?(log2Scale: number): number;
   /**
    * optional guesses of this tensor's own edges (the exponent where its overflow, and its flushing, reach the
    * limits): the searches start there and gallop, which finds the same edges in fewer steps than bisecting the
@@ -146,32 +150,77 @@ function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTe
 }
 
 // Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
-// not, tensors are integrated in priority order (those likeliest to overflow first) until the exact part plus the
-// remaining bounds decides: the same answer as summing every integral, for a fraction of the integrals.
+// not, tensors are taken in priority order (those likeliest to overflow first): each one's upper bound is tightened
+// where the curve offers a tighter one, and it is integrated unless that bound makes it negligible; then the rest,
+// largest upper bound first, until the exact part plus the remaining bounds decides: the same answer as summing
+// every integral, for a fraction of the integrals.
 function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number, budget: number): boolean {
   if (!tensors.every((t) => t.overflowRiskBounds !== undefined)) return totalRisk(tensors, k) <= budget;
-  const lows = new Float64Array(tensors.length);
-  const highs = new Float64Array(tensors.length);
+  const n = tensors.length;
+  const lows = new Float64Array(n);
+  const highs = new Float64Array(n);
+  // 0: the cheap bounds, 1: the upper bound tightened, 2: exact
+  const state = new Uint8Array(n);
   let low = 0;
   let high = 0;
-  for (let i = 0; i < tensors.length; i++) {
+  for (let i = 0; i < n; i++) {
     const [a, b] = (tensors[i] as ScaledTensorCurves).overflowRiskBounds!(k);
     lows[i] = a;
     highs[i] = b;
+    if (a === b) state[i] = 2;
     low += a;
     high += b;
     // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
     if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
   }
-  // widened for the rounding of the sums
-  if (high * (1 + 1e-12) <= budget) return true;
-  for (const i of order) {
-    if ((lows[i] as number) === (highs[i] as number)) continue;
+  // The sums are updated as bounds change; a decision they suggest is confirmed by summing afresh (the updates
+  // cancel, and their rounding adds up), widened for the rounding of a sum.
+  const decided = (): boolean | undefined => {
+    if (!(high * (1 + 1e-12) <= budget) && !(Math.min(1, low * (1 - 1e-12)) > budget)) return undefined;
+    low = 0;
+    high = 0;
+    for (let i = 0; i < n; i++) {
+      low += lows[i] as number;
+      high += highs[i] as number;
+    }
+    if (high * (1 + 1e-12) <= budget) return true;
+    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+    return undefined;
+  };
+  const integrate = (i: number): boolean | undefined => {
     const exact = (tensors[i] as ScaledTensorCurves).overflowRisk(k);
     low += exact - (lows[i] as number);
     high += exact - (highs[i] as number);
-    if (high * (1 + 1e-12) <= budget) return true;
-    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+    lows[i] = exact;
+    highs[i] = exact;
+    state[i] = 2;
+    return decided();
+  };
+  let answer = decided();
+  if (answer !== undefined) return answer;
+  // a tensor whose tightened bound is this small is left for last: it barely moves the sum
+  const negligible = budget * 2 ** -10;
+  for (const i of order) {
+    if (state[i] === 2) continue;
+    const t = tensors[i] as ScaledTensorCurves;
+    if (state[i] === 0 && t.overflowRiskUpper) {
+      state[i] = 1;
+      const upper = Math.max(lows[i] as number, t.overflowRiskUpper(k));
+      if (upper < (highs[i] as number)) {
+        high += upper - (highs[i] as number);
+        highs[i] = upper;
+        answer = decided();
+        if (answer !== undefined) return answer;
+      }
+      if (upper <= negligible) continue;
+    }
+    answer = integrate(i);
+    if (answer !== undefined) return answer;
+  }
+  const rest = order.filter((i) => state[i] !== 2).sort((a, b) => (highs[b] as number) - (highs[a] as number) || a - b);
+  for (const i of rest) {
+    answer = integrate(i);
+    if (answer !== undefined) return answer;
   }
   return totalRisk(tensors, k) <= budget;
 }
@@ -180,7 +229,7 @@ function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly numb
 // upper bound is below a value already found, or below another's lower bound, cannot be the largest: only the
 // others are integrated, in priority order so that a large value is found early.
 function worstRisk(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): string | null {
-  return worst(tensors, order, (t) => t.overflowRisk(k), (t) => t.overflowRiskBounds?.(k)).id;
+  return worst(tensors, order, (t) => t.overflowRisk(k), (t) => t.overflowRiskBounds?.(k), (t) => t.overflowRiskUpper?.(k)).id;
 }
 
 function worst(
@@ -188,6 +237,7 @@ function worst(
   order: readonly number[],
   value: (t: ScaledTensorCurves) => number,
   bounds: (t: ScaledTensorCurves) => readonly [number, number] | undefined,
+  upper: (t: ScaledTensorCurves) => number | undefined,
 ): { id: string | null; value: number } {
   const highs = new Float64Array(tensors.length).fill(Infinity);
   let floor = -Infinity;
@@ -201,7 +251,10 @@ function worst(
   const known = new Uint8Array(tensors.length);
   for (const i of order) {
     if ((highs[i] as number) < floor) continue;
-    const v = value(tensors[i] as ScaledTensorCurves);
+    const t = tensors[i] as ScaledTensorCurves;
+    const u = (highs[i] as number) > floor ? upper(t) : undefined;
+    if (u !== undefined && u < floor) continue;
+    const v = value(t);
     values[i] = v;
     known[i] = 1;
     if (v > floor) floor = v;
@@ -226,6 +279,8 @@ function flushOkAt(t: ScaledTensorCurves, k: number, tolerance: number): boolean
     if (high <= tolerance) return true;
     if (low > tolerance) return false;
   }
+  const upper = t.flushedEnergyUpper?.(k);
+  if (upper !== undefined && upper <= tolerance) return true;
   return t.flushedEnergy(k) <= tolerance;
 }
 
@@ -248,7 +303,7 @@ function flushEdge(tensors: readonly ScaledTensorCurves[], order: readonly numbe
 
 // The tensor with the largest flushed share at k (the first such; the first tensor when every share is 0).
 function worstFlush(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): { id: string | null; share: number } {
-  const { id, value } = worst(tensors, order, (t) => t.flushedEnergy(k), (t) => t.flushedEnergyBounds?.(k));
+  const { id, value } = worst(tensors, order, (t) => t.flushedEnergy(k), (t) => t.flushedEnergyBounds?.(k), (t) => t.flushedEnergyUpper?.(k));
   return { id, share: Math.max(0, value) };
 }
 

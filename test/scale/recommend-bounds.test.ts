@@ -1,0 +1,69 @@
+// The segment upper bounds that let the window and the dynamic-scale simulation skip integrals must bound the
+// draw integrals of src/risk/profile.ts from above, for every element shape, spread, size and threshold; and they
+// must be tight enough in the tail to be worth having.
+import { describe, expect, it } from "vitest";
+import type { ElementShape, MagnitudeProfile } from "../../src/magnitude/types.js";
+import { energyBelow, probabilityAnyAbove } from "../../src/risk/index.js";
+import { energyBelowUpper, probabilityAnyAboveUpper } from "../../src/scale/recommend.js";
+
+const SHAPES: { shape: ElementShape; bound?: number; elementLog2Spread?: number }[] = [
+  { shape: "gaussian" },
+  { shape: "half-gaussian" },
+  { shape: "uniform" },
+  { shape: "constant" },
+  { shape: "bounded", bound: 4 },
+  { shape: "log-normal", elementLog2Spread: 1.5 },
+];
+
+function profiles(): MagnitudeProfile[] {
+  const out: MagnitudeProfile[] = [];
+  for (const s of SHAPES) {
+    for (const log2Spread of [0, 0.02, 0.3, 1, 2.25, 4]) {
+      for (const elements of [1, 256, 65_536, 1e8]) {
+        out.push({ elements, zeroFraction: elements === 256 ? 0.5 : 0, rms: 1, log2Spread, ...s });
+      }
+    }
+  }
+  return out;
+}
+
+// thresholds from 60 binades below the rms to 60 above, in steps of 3/8 binade (the window steps by whole binades;
+// these steps land between the rule's nodes as well as on them)
+const THRESHOLDS = Array.from({ length: 321 }, (_, i) => 2 ** (-60 + (3 * i) / 8));
+
+describe("segment upper bounds", () => {
+  it("bound the probability that any element exceeds a threshold, for every shape, spread, size and threshold", () => {
+    let checked = 0;
+    for (const p of profiles()) {
+      for (const t of THRESHOLDS) {
+        const exact = probabilityAnyAbove(p, t);
+        const upper = probabilityAnyAboveUpper(p, t);
+        if (!(upper >= exact)) throw new Error(`probabilityAnyAboveUpper below the integral: ${JSON.stringify(p)} t=${t}: ${upper} < ${exact}`);
+        checked++;
+      }
+    }
+    expect(checked).toBe(SHAPES.length * 24 * THRESHOLDS.length);
+  });
+
+  it("bound the share of the energy below a threshold, for every shape, spread, size and threshold", () => {
+    for (const p of profiles()) {
+      for (const t of THRESHOLDS) {
+        const exact = energyBelow(p, t);
+        const upper = energyBelowUpper(p, t);
+        if (!(upper >= exact)) throw new Error(`energyBelowUpper below the integral: ${JSON.stringify(p)} t=${t}: ${upper} < ${exact}`);
+      }
+    }
+  });
+
+  it("are far tighter than 1 in the tail, where they save integrals", () => {
+    // a Gaussian tensor of 65,536 elements spread by 2 binades: 40 binades above the rms, the chance of reaching
+    // the threshold is astronomically small, and the bound says so
+    const p: MagnitudeProfile = { elements: 65_536, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 2 };
+    expect(probabilityAnyAboveUpper(p, 2 ** 40)).toBeLessThan(1e-15);
+    // within a factor of a thousand of the integral a few binades into the tail (one segment spans 2 binades here)
+    const t = 2 ** 10;
+    expect(probabilityAnyAboveUpper(p, t)).toBeLessThan(1000 * probabilityAnyAbove(p, t));
+    // and the flushed energy far below the rms
+    expect(energyBelowUpper(p, 2 ** -30)).toBeLessThan(1e-6);
+  });
+});
