@@ -11,6 +11,7 @@ import {
   overDraws,
   overDrawsBounds,
   overDrawsInnerBounds,
+  ruleOverDraws,
 } from "../../src/risk/laws.js";
 
 // The closure-free draw sums must be the element laws' draw sums exactly: the same nodes, the same arithmetic.
@@ -34,18 +35,80 @@ function sweep(): { profile: MagnitudeProfile; t: number }[] {
   return cases;
 }
 
-describe("draw sums of the element laws without closures", () => {
-  it("equal overDraws with the element law's closures bit for bit", () => {
+// The rule overDraws documents, summed over all its nodes: composite Simpson, step 1/8 on [−9, 9], weights
+// normalised (Simpson's rule; Abramowitz & Stegun 25.4.5). The reference the faster sums are held to.
+function simpson(rms: number, log2Spread: number, f: (r: number) => number): number {
+  if (!(log2Spread > 0)) return f(rms);
+  const count = 145;
+  let sum = 0;
+  let total = 0;
+  for (let i = 0; i < count; i++) {
+    const z = -9 + i / 8;
+    const weight = (i === 0 || i === count - 1 ? 1 : i % 2 === 1 ? 4 : 2) * Math.exp(-0.5 * z * z);
+    total += weight;
+    sum += weight * f(rms * 2 ** (log2Spread * z));
+  }
+  return Math.min(1, Math.max(0, sum / total));
+}
+
+// relative difference, and relative in the complement for a probability near 1 (compared by its distance from 1,
+// down to 1e-6: closer, the sum's rounding, about 1e-16, decides the complement's digits)
+function apart(actual: number, expected: number): number {
+  if (actual === expected) return 0;
+  const difference = Math.abs(actual - expected);
+  const complement = 1 - expected;
+  return Math.max(difference / Math.max(Math.abs(expected), 1e-300), complement > 1e-6 ? difference / complement : difference / 1e-6);
+}
+
+describe("draw sums of the element laws", () => {
+  // the monotone sum (exceedance probabilities, closures) stops at 1e-9 of the sum and of its complement
+  it("stay within 2e-9 of the rule's sum, relative to the value and to its complement", () => {
+    let worst = 0;
+    let worstCase: unknown = null;
+    const note = (what: string, a: number, b: number, profile: MagnitudeProfile, t: number): void => {
+      const d = apart(a, b);
+      if (d > worst) {
+        worst = d;
+        worstCase = { what, a, b, profile, t };
+      }
+    };
     for (const { profile, t } of sweep()) {
       const law = elementLaw(profile);
       const n = nonzeroElements(profile);
       const { rms, log2Spread } = profile;
       for (const positiveOnly of [false, true]) {
         const share = positiveOnly ? law.positiveShare : 1;
-        expect(lawOverDraws(profile, "any-above", t, positiveOnly)).toBe(overDraws(rms, log2Spread, (r) => anyOf(share * law.above(r, t), n)));
+        const f = (r: number): number => anyOf(share * law.above(r, t), n);
+        note("law any", lawOverDraws(profile, "any-above", t, positiveOnly), ruleOverDraws(rms, log2Spread, f), profile, t);
+        note("closure any", overDraws(rms, log2Spread, f), ruleOverDraws(rms, log2Spread, f), profile, t);
       }
-      expect(lawOverDraws(profile, "below", t)).toBe(overDraws(rms, log2Spread, (r) => law.below(r, t)));
-      expect(lawOverDraws(profile, "energy-below", t)).toBe(overDraws(rms, log2Spread, (r) => law.energyBelow(r, t)));
+      for (const measure of ["below", "energy-below"] as const) {
+        const f = measure === "below" ? (r: number) => law.below(r, t) : (r: number) => law.energyBelow(r, t);
+        note(measure, lawOverDraws(profile, measure, t), ruleOverDraws(rms, log2Spread, f), profile, t);
+        note(`closure ${measure}`, overDraws(rms, log2Spread, f), ruleOverDraws(rms, log2Spread, f), profile, t);
+      }
+    }
+    if (worst >= 2e-9) console.log(JSON.stringify(worstCase));
+    expect(worst).toBeLessThan(2e-9);
+  });
+
+  // the rule itself: its coarse sum is accepted when two coarse steps agree to 1e-10 (see laws.ts)
+  it("the rule's sum stays within 1e-7 of the full Simpson rule", () => {
+    for (const { profile, t } of sweep()) {
+      const law = elementLaw(profile);
+      const n = nonzeroElements(profile);
+      const f = (r: number): number => anyOf(law.above(r, t), n);
+      const rule = ruleOverDraws(profile.rms, profile.log2Spread, f);
+      const full = simpson(profile.rms, profile.log2Spread, f);
+      expect(Math.abs(rule - full)).toBeLessThanOrEqual(1e-7 * full);
+    }
+  });
+
+  it("without closures equal the bounds of the element law's closures bit for bit", () => {
+    for (const { profile, t } of sweep()) {
+      const law = elementLaw(profile);
+      const n = nonzeroElements(profile);
+      const { rms, log2Spread } = profile;
       expect(lawOverDrawsBounds(profile, "any-above", t, false)).toEqual(overDrawsBounds(rms, log2Spread, (r) => anyOf(law.above(r, t), n)));
       expect(lawOverDrawsBounds(profile, "energy-below", t, true)).toEqual(overDrawsInnerBounds(rms, log2Spread, (r) => law.energyBelow(r, t)));
     }
