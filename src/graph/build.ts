@@ -365,7 +365,14 @@ function positive(value: number): boolean {
 }
 
 function sameShape(a: SampleShape, b: SampleShape): boolean {
-  return JSON.stringify(a) === JSON.stringify(b);
+  switch (a.layout) {
+    case "tokens":
+      return b.layout === "tokens" && a.positions === b.positions;
+    case "features":
+      return b.layout === "features" && a.positions === b.positions && a.features === b.features;
+    case "image":
+      return b.layout === "image" && a.channels === b.channels && a.height === b.height && a.width === b.width;
+  }
 }
 
 /** Output size of a convolution: floor((n + 2p − k)/s) + 1; "same" gives ceil(n/s) (common practice). */

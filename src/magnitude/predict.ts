@@ -343,7 +343,13 @@ class Phase {
    * gradients add up the same way, W·q, and averaging divides by W (q/W²).
    */
   weightGradient(layer: GraphLayer, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
-    const weight = layer.weights.find((w) => w.name === wg.weight);
+    let weight: GraphWeight | undefined;
+    for (const w of layer.weights) {
+      if (w.name === wg.weight) {
+        weight = w;
+        break;
+      }
+    }
     if (weight === undefined) return;
     const training = this.spec.training;
     const A = training.accumulationSteps;

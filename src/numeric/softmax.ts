@@ -70,6 +70,19 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
   // transcendental parts are evaluated once per lattice point v_j = base + j·spacing (y = e^v: 1 − e^(−y), y·e^(−y),
   // y²·e^(−y)); the weights sum to exactly 1, so that L_0 ≤ 1 and its power stays finite
   const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, U_STEP * s), s, variance, C);
+  const { a0, a1, a2 } = latticeTransforms(latticeLength, base, spacing);
+  const result = momentSums(steps, low, k, n, weight, a0, a1, a2, C);
+  if (cache.size > 4096) cache.clear();
+  cache.set(key, result);
+  return result;
+}
+
+// The loops of gaussianSoftmaxMoments live in their own small functions: each is optimised as soon as it is hot with
+// the type feedback of its whole body, where one large function was optimised early and then thrown back to the
+// interpreter by its later, not yet run, parts (a first call cost tens of milliseconds).
+
+/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y), y·e^(−y), y²·e^(−y). */
+function latticeTransforms(latticeLength: number, base: number, spacing: number): { a0: Float64Array; a1: Float64Array; a2: Float64Array } {
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);
   const a2 = new Float64Array(latticeLength);
@@ -82,6 +95,21 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
       a2[j] = y * y * e;
     }
   }
+  return { a0, a1, a2 };
+}
+
+/** The trapezoid sums over u = ln t of gaussianSoftmaxMoments. */
+function momentSums(
+  steps: number,
+  low: number,
+  k: number,
+  n: number,
+  weight: Float64Array,
+  a0: Float64Array,
+  a1: Float64Array,
+  a2: Float64Array,
+  C: number,
+): SoftmaxMoments {
   let mean = 0;
   let second = 0;
   let logSumExp = 0;
@@ -104,10 +132,7 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
     // (e^(−t) − L_0^C)/t · t du = (1 − L_0^C) − (1 − e^(−t))
     logSumExp += -Math.expm1(C * logL0) + Math.expm1(-t);
   }
-  const result = { mean: mean * U_STEP, second: second * U_STEP, logSumExp: logSumExp * U_STEP };
-  if (cache.size > 4096) cache.clear();
-  cache.set(key, result);
-  return result;
+  return { mean: mean * U_STEP, second: second * U_STEP, logSumExp: logSumExp * U_STEP };
 }
 
 const pairCache = new Map<string, number>();
@@ -154,6 +179,29 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   const he = se > 0 ? Math.min(0.25, 0.3 / se) : 1;
   const ne = se > 0 ? 2 * Math.ceil(Z_RANGE / he) + 1 : 1;
   const we = se > 0 ? normalisedGaussianWeights(ne, he) : Float64Array.of(1);
+  const { offMinus, m1 } = pairTransforms(latticeLength, base, spacing, se, he, ne, we);
+  const result = pairSum(steps, k, na, wa, offMinus, m1, C) * PAIR_STEP * PAIR_STEP;
+  if (pairCache.size > 4096) pairCache.clear();
+  pairCache.set(key, result);
+  return result;
+}
+
+/**
+ * The one-class transforms of the ε part of gaussianSoftmaxPairMoment on the lattice. e^(se·ε_e) does not depend on
+ * the lattice point, so it is tabled once (the same expression, so the same values); past y = 39, e^(−y) is below
+ * half an ulp of 1 and expm1(−y) is exactly −1 (fdlibm returns −1 below −56·ln 2), so it is not called.
+ */
+function pairTransforms(
+  latticeLength: number,
+  base: number,
+  spacing: number,
+  se: number,
+  he: number,
+  ne: number,
+  we: Float64Array,
+): { offMinus: Float64Array; m1: Float64Array } {
+  const growth = new Float64Array(ne);
+  for (let e = 0; e < ne; e++) growth[e] = Math.exp(se * (e - (ne - 1) / 2) * he);
   const offMinus = new Float64Array(latticeLength);
   const m1 = new Float64Array(latticeLength);
   for (let j = 0; j < latticeLength; j++) {
@@ -161,15 +209,20 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
     let a0 = 0;
     let a1 = 0;
     for (let e = 0; e < ne; e++) {
-      const y = tau * Math.exp(se * (e - (ne - 1) / 2) * he);
+      const y = tau * (growth[e] as number);
       const w = we[e] as number;
-      a0 -= w * Math.expm1(-y);
+      a0 -= w * (y > 39 ? -1 : Math.expm1(-y));
       const decay = Math.exp(-y);
       if (decay > 0) a1 += w * y * decay;
     }
     offMinus[j] = a0;
     m1[j] = a1;
   }
+  return { offMinus, m1 };
+}
+
+/** The double trapezoid sum over ln t and ln u of gaussianSoftmaxPairMoment (symmetric: the upper triangle twice). */
+function pairSum(steps: number, k: number, na: number, wa: Float64Array, offMinus: Float64Array, m1: Float64Array, C: number): number {
   let sum = 0;
   for (let i = 0; i < steps; i++) {
     for (let j = i; j < steps; j++) {
@@ -188,10 +241,7 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
       sum += i === j ? term : 2 * term;
     }
   }
-  const result = sum * PAIR_STEP * PAIR_STEP;
-  if (pairCache.size > 4096) pairCache.clear();
-  pairCache.set(key, result);
-  return result;
+  return sum;
 }
 
 /**

@@ -42,6 +42,27 @@ export function fmt(value: number): string {
   return a >= 1e4 || a < 1e-3 ? value.toExponential(3) : Number(value.toPrecision(4)).toString();
 }
 
+/**
+ * What an operation hazard sees of a signal whose second moment becomes q (the terms of a weighted sum): the signal's
+ * fields, q and shape replaced, as a spread would give for every field a magnitude profile reads. Written out: a
+ * spread over signals of many shapes is slow.
+ */
+export function hazardInput(s: Signal, q: number, shape: Signal["shape"]): Signal {
+  return {
+    q,
+    mean: 0,
+    zeroFraction: s.zeroFraction,
+    shape,
+    logVar: s.logVar,
+    gaussian: true,
+    bound: s.bound,
+    elementLog2Spread: s.elementLog2Spread,
+    tail: s.tail,
+    shared: s.shared,
+    positionCorrelation: s.positionCorrelation,
+  };
+}
+
 /** The shared (per-feature batch mean²) part of a signal's second moment. */
 export function sharedOf(signal: Signal): number {
   return signal.shared ?? signal.mean * signal.mean;

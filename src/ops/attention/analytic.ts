@@ -19,6 +19,7 @@ import {
   factor,
   fmt,
   gradientSum,
+  hazardInput,
   linearGradient,
   linearOutput,
   positionCorrelationOf,
@@ -249,7 +250,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const hazards: OpHazard[] = [
       {
         kind: "accumulation",
-        input: { ...query.signal, q: query.signal.q * key.signal.q * (spec.scaling === "query" ? scale2 : 1) },
+        input: hazardInput(query.signal, query.signal.q * key.signal.q * (spec.scaling === "query" ? scale2 : 1), query.signal.shape),
         inputElements: matrixElements * d,
         output: accumulated,
         outputElements: matrixElements,
@@ -272,7 +273,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       },
       {
         kind: "accumulation",
-        input: { ...value.signal, q: value.signal.q * rows.elementSecond },
+        input: hazardInput(value.signal, value.signal.q * rows.elementSecond, value.signal.shape),
         inputElements: matrixElements * d,
         output: heads,
         outputElements: projectionElements,
@@ -282,7 +283,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       },
       {
         kind: "accumulation",
-        input: { ...heads, q: heads.q * ctx.variance(wo) },
+        input: hazardInput(heads, heads.q * ctx.variance(wo), heads.shape),
         inputElements: projectionElements * D,
         output,
         outputElements: ctx.batch * P * D,

@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { SOURCES, factor, fmt, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -50,7 +50,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
     hazards: [
       {
         kind: "accumulation",
-        input: { ...input, q: input.q * variance, mean: 0, shape: "gaussian", zeroFraction: input.zeroFraction, gaussian: true },
+        input: hazardInput(input, input.q * variance, "gaussian"),
         inputElements: ctx.batch * perSample * w.fanIn,
         output,
         outputElements: ctx.batch * perSample,
