@@ -11,9 +11,18 @@ import { evaluateTask } from "./evaluate.js";
 import { serveTasks } from "./serve.js";
 import { summarizeCheck } from "../report/summary.js";
 
-const options: CheckOptions = (workerData as { check?: CheckOptions } | null)?.check ?? {};
-let schema: Record<string, unknown> | undefined;
-// built on the first task with a variant: most batches have none, and building it takes a while
+/** What the pool hands each batch worker. */
+export interface BatchWorkerData {
+  /** check options (e.g. the plan) */
+  check?: CheckOptions;
+  /** the spec's JSON Schema, for --vary: built once by the caller instead of once per worker */
+  schema?: Record<string, unknown>;
+}
+
+const data = (workerData ?? {}) as BatchWorkerData;
+const options: CheckOptions = data.check ?? {};
+let schema: Record<string, unknown> | undefined = data.schema;
+// otherwise built on the first task with a variant: most batches have none, and building it loads zod (~0.2 s)
 const lazySchema = (): Record<string, unknown> => (schema ??= specJsonSchema());
 
 serveTasks((task: Parameters<typeof evaluateTask>[0]) =>

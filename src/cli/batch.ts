@@ -9,6 +9,7 @@ import { specJsonSchema } from "../spec/index.js";
 import { parseFormats } from "./check.js";
 import { expandInputs, pathsFromText } from "../batch/paths.js";
 import { runBatch } from "../batch/run.js";
+import type { BatchWorkerData } from "../batch/worker.js";
 import { batchExitCode } from "../batch/types.js";
 import { parseVaryOption, variantsOf, VaryError, type Variant } from "../batch/vary.js";
 import { renderBatchCsv, renderBatchJsonl, renderBatchMarkdown, renderBatchText } from "../report/batch.js";
@@ -91,7 +92,11 @@ export const register: RegisterCommand = (program) => {
       try {
         rows = await runBatch(inputs, variants, {
           ...(workers !== undefined ? { workers } : {}),
-          workerData: { check: flags.plan !== undefined ? { plan: flags.plan } : {} },
+          workerData: {
+            check: flags.plan !== undefined ? { plan: flags.plan } : {},
+            // --vary needs the JSON Schema in every worker: built here once, not once per worker
+            ...(variants.length > 0 ? { schema: specJsonSchema() } : {}),
+          } satisfies BatchWorkerData,
           onRow: (done, total) => {
             progress ??= createProgress({ total, label: "checking" });
             progress.tick(done - progressDone);
