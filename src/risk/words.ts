@@ -52,10 +52,16 @@ function threeDigits(magnitude: number): number {
   const k = 2 - e;
   const scaled = k >= 0 ? magnitude * pow10(k) : magnitude / pow10(-k);
   if (!(scaled >= 100.000001 && scaled < 999.999999)) {
-    if (!(scaled >= 999.5000001 && scaled < 1000.4999999)) return 0;
-    // rounds up into the next decade: 1.00e(e+1)
-    digitsExponent = e + 1;
-    return 100;
+    // at a decade's edge (or log10 one off it): the digits are 100 in this decade or the next
+    if (scaled >= 99.9500001 && scaled < 100.000001) {
+      digitsExponent = e;
+      return 100;
+    }
+    if (scaled >= 999.999999 && scaled < 1000.4999999) {
+      digitsExponent = e + 1;
+      return 100;
+    }
+    return 0;
   }
   const floor = Math.floor(scaled);
   const fraction = scaled - floor;

@@ -27,6 +27,9 @@ describe("plainNumber", () => {
     expect(plainNumber(-Infinity)).toBe("-infinity");
     expect(plainNumber(Number.NaN)).toBe("not a number");
     expect(plainNumber(0)).toBe("0");
+    expect(plainNumber(0.01)).toBe("0.01");
+    expect(plainNumber(0.009999999)).toBe("0.01");
+    expect(plainNumber(0.0999999)).toBe("0.1");
     expect(plainNumber(-0)).toBe("0");
   });
 
