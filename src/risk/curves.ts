@@ -5,7 +5,7 @@
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowBounds, probabilityAnyAboveBounds } from "./bounds.js";
 import { energyBelow, probabilityAnyAbove, sameDistribution } from "./profile.js";
-import { GRADIENT_ROLES } from "./tensor.js";
+import { GRADIENT_ROLES, riskProfile } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
 /** A gradient tensor's response to the loss scale 2^k, at the worse of the start and the end of the horizon. */
@@ -35,8 +35,10 @@ export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: Ra
       const flush = new Map<number, number>();
       const flushBounds = new Map<number, readonly [number, number]>();
       const overflowBounds = new Map<number, readonly [number, number]>();
-      const { start, end } = tensor;
-      const same = sameDistribution(start, end);
+      // the risk functions see profiles of one layout (riskProfile), whatever fields the prediction carried
+      const same = sameDistribution(tensor.start, tensor.end);
+      const start = riskProfile(tensor.start);
+      const end = same ? start : riskProfile(tensor.end);
       // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile
       // against t·2^−k, exactly (powers of two), without a scaled copy per exponent
       const worse = (f: (profile: MagnitudeProfile) => number): number => (same ? f(start) : Math.max(f(start), f(end)));

@@ -82,6 +82,25 @@ export interface ScaledTensor {
   same: boolean;
 }
 
+/**
+ * The profile times a factor, as {@link scaleProfile} makes it, with only the fields the risk numbers read
+ * (those {@link sameDistribution} compares) in one fixed layout: every profile the risk functions see then has
+ * the same shape, whatever propagation fields the prediction carried.
+ */
+export function riskProfile(profile: MagnitudeProfile, factor = 1): MagnitudeProfile {
+  const view: MagnitudeProfile = {
+    elements: profile.elements,
+    zeroFraction: profile.zeroFraction,
+    shape: profile.shape,
+    rms: profile.rms * factor,
+    log2Spread: profile.log2Spread,
+  };
+  // absent fields stay absent (a spread copy keeps them so); set ones are kept, the bound scaled with the elements
+  if (profile.bound !== undefined) view.bound = profile.bound * factor;
+  if (profile.elementLog2Spread !== undefined) view.elementLog2Spread = profile.elementLog2Spread;
+  return view;
+}
+
 /** {@link tensorStatistics}, keeping the scaled profiles for {@link scaledTensorRisk}. */
 export function scaledTensor(
   tensor: TensorPrediction,
@@ -89,13 +108,13 @@ export function scaledTensor(
   thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
 ): ScaledTensor {
   const factor = lossScaleFactor(tensor.role, lossScale);
-  const startProfile = scaleProfile(tensor.start, factor);
+  const startProfile = riskProfile(tensor.start, factor);
   const startStatistics = profileStatistics(startProfile, thresholds);
   // many tensors end the horizon as they start (weights and activations without growth): compute once
   if (sameDistribution(tensor.start, tensor.end)) {
     return { statistics: { factor, start: startStatistics, end: startStatistics }, start: startProfile, end: startProfile, same: true };
   }
-  const endProfile = scaleProfile(tensor.end, factor);
+  const endProfile = riskProfile(tensor.end, factor);
   const endStatistics = profileStatistics(endProfile, thresholds);
   return { statistics: { factor, start: startStatistics, end: endStatistics }, start: startProfile, end: endProfile, same: false };
 }
@@ -129,9 +148,9 @@ export function tensorFormatRisk(
   statistics: TensorStatistics,
   options: TensorRiskOptions,
 ): TensorFormatRisk {
-  const start = scaleProfile(tensor.start, statistics.factor);
+  const start = riskProfile(tensor.start, statistics.factor);
   const same = sameDistribution(tensor.start, tensor.end) && statistics.start === statistics.end;
-  const end = same ? start : scaleProfile(tensor.end, statistics.factor);
+  const end = same ? start : riskProfile(tensor.end, statistics.factor);
   return scaledTensorRisk(tensor, { statistics, start, end, same }, limits, options);
 }
 
@@ -167,7 +186,7 @@ function evaluate(
   const factor = 2 ** scaleLog2;
   // scaling is linear, so the statistics scale with it
   const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
-  const risk = profileRisk(scaleProfile(scaled, factor), limits, rescaled);
+  const risk = profileRisk(riskProfile(scaled, factor), limits, rescaled);
   const block = options.blockScaling;
   if (!block) return { risk, scaleLog2 };
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
