@@ -164,6 +164,7 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
     }
     return profiles;
   };
+  const narrowings = new Map<number, [number, OverflowNarrowing][]>();
   // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
   // scale takes), without a scaled copy per scale
   return {
@@ -171,7 +172,14 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
       return new OverflowNarrowing(at(progress), limits.overflowLevel / scale).value();
     },
     overflowBounds(scale: number, progress: number) {
-      return new OverflowNarrowing(at(progress), limits.overflowLevel / scale);
+      // a tensor's probability grows with the scale: what is known at a larger scale of the same point bounds it here
+      let atPoint = narrowings.get(progress);
+      if (atPoint === undefined) narrowings.set(progress, (atPoint = []));
+      let above: OverflowNarrowing | undefined;
+      for (const [s, n] of atPoint) if (s > scale && (above === undefined || s < above.scale)) above = n;
+      const narrowing = new OverflowNarrowing(at(progress), limits.overflowLevel / scale, scale, above);
+      atPoint.push([scale, narrowing]);
+      return narrowing;
     },
     flushesTooMuch(scale: number, progress: number) {
       const bound = limits.flushBound / scale;
@@ -182,8 +190,9 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
 
 /**
  * P(any gradient overflows) = 1 − Π (1 − p_i) over the tensors (independent tensors), as bounds narrowed on
- * request: from the tensors' segment upper bounds, then with the exact p_i of the tensors with the largest upper
- * bounds, in growing batches; the bounds on the product allow for its rounding. Once every p_i that can move the
+ * request: from the tensors' segment upper bounds (or, lower still, what a larger scale of the same point of the
+ * horizon knows: p_i grows with the scale), then with the exact p_i of the tensors with the largest upper bounds, in
+ * batches growing by a tenth; the bounds on the product allow for its rounding. Once every p_i that can move the
  * product is known, the value is the product in the tensors' order, exactly as {@link OverflowNarrowing.value}
  * gives it.
  */
@@ -193,15 +202,17 @@ class OverflowNarrowing implements OverflowBounds {
   exact = false;
   // each tensor's bounds on p_i (equal once integrated)
   private readonly lows: Float64Array;
-  private readonly highs: Float64Array;
-  private readonly known: Uint8Array;
-  private order: number[] | null = null;
+  readonly highs: Float64Array;
+  readonly known: Uint8Array;
+  order: number[] | null = null;
   private done = 0;
   private batch = 1;
 
   constructor(
     private readonly profiles: readonly MagnitudeProfile[],
     private readonly level: number,
+    readonly scale = 1,
+    private readonly above?: OverflowNarrowing,
   ) {
     const n = profiles.length;
     this.lows = new Float64Array(n);
@@ -230,7 +241,12 @@ class OverflowNarrowing implements OverflowBounds {
     if (this.order === null) {
       // first every tensor's segment upper bound, then integrate the largest first
       const highs = this.highs;
-      for (let i = 0; i < this.profiles.length; i++) highs[i] = probabilityAnyAboveUpper(this.profiles[i]!, this.level);
+      const above = this.above?.order != null ? this.above : undefined;
+      for (let i = 0; i < this.profiles.length; i++) {
+        // at a larger scale: the upper bound there, or the value widened for the rounding of the two integrals
+        const there = above === undefined ? 1 : above.known[i] === 1 ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
+        highs[i] = there <= 2 ** -54 ? there : Math.min(there, probabilityAnyAboveUpper(this.profiles[i]!, this.level));
+      }
       this.order = [];
       for (let i = 0; i < highs.length; i++) if (highs[i]! > 2 ** -54) this.order.push(i);
       this.order.sort((a, b) => highs[b]! - highs[a]! || a - b);
@@ -243,7 +259,7 @@ class OverflowNarrowing implements OverflowBounds {
         this.highs[i] = p;
         this.known[i] = 1;
       }
-      this.batch *= 2;
+      this.batch = Math.ceil(this.batch * 1.1);
     }
     if (this.done === this.order.length) {
       const value = this.value();
@@ -278,8 +294,8 @@ class OverflowNarrowing implements OverflowBounds {
 // fallen so far that everything beyond adds under a twentieth (bounded by the integrand there times the mass left).
 // The result is multiplied by a factor that covers the difference between the true draw integral and the rule that
 // evaluates it (a positive-weight rule on ±9 standard deviations, or a closed form of the same integral), whose
-// weight on any segment is far within 4 times the segment's mass (checked in test/scale/recommend-bounds.test.ts).
-const RULE_FACTOR = 4;
+// weight on any segment is far within twice the segment's mass (the bounds hold with 1.2; checked in test/scale/recommend-bounds.test.ts).
+const RULE_FACTOR = 2;
 const SEGMENT_LIMIT = 9;
 // MASS_ABOVE[j] = P(z > j − 9), j = 0 … 18
 const MASS_ABOVE = Array.from({ length: 2 * SEGMENT_LIMIT + 1 }, (_, j) => normalSf(j - SEGMENT_LIMIT));

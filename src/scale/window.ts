@@ -151,9 +151,9 @@ function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTe
 
 // Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
 // not, tensors are taken in priority order (those likeliest to overflow first): each one's upper bound is tightened
-// where the curve offers a tighter one, and it is integrated unless that bound makes it negligible; then the rest,
-// largest upper bound first, until the exact part plus the remaining bounds decides: the same answer as summing
-// every integral, for a fraction of the integrals.
+// where the curve offers a tighter one, and it is integrated if that bound could still break the budget alone; then
+// the rest, largest upper bound first, until the exact part plus the remaining bounds decides: the same answer as
+// summing every integral, for a fraction of the integrals.
 function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number, budget: number): boolean {
   if (!tensors.every((t) => t.overflowRiskBounds !== undefined)) return totalRisk(tensors, k) <= budget;
   const n = tensors.length;
@@ -198,8 +198,7 @@ function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly numb
   };
   let answer = decided();
   if (answer !== undefined) return answer;
-  // a tensor whose tightened bound is this small is left for last: it barely moves the sum
-  const negligible = budget * 2 ** -10;
+  // a tensor whose tightened bound could not break the budget alone is left for the second pass
   for (const i of order) {
     if (state[i] === 2) continue;
     const t = tensors[i] as ScaledTensorCurves;
@@ -212,7 +211,7 @@ function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly numb
         answer = decided();
         if (answer !== undefined) return answer;
       }
-      if (upper <= negligible) continue;
+      if (upper <= budget) continue;
     }
     answer = integrate(i);
     if (answer !== undefined) return answer;
