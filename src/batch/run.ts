@@ -77,13 +77,15 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
   outcomes.forEach((outcome, i) => {
     const index = taskRow[i]!;
     const task = tasks[i]!;
-    const head = { index, file: task.file, variant: task.variant?.name ?? null };
+    const file = task.file;
+    const variant = task.variant?.name ?? null;
+    // written out, not `{ ...head, status }`: on Node 20 a literal that adds keys after a spread costs microseconds
     if (!outcome.ok) {
-      rows[index] = { ...head, status: "error", error: { kind: "internal", message: `${task.file}: ${outcome.error}` } };
+      rows[index] = { index, file, variant, status: "error", error: { kind: "internal", message: `${task.file}: ${outcome.error}` } };
     } else if (outcome.value.status === "ok") {
-      rows[index] = { ...head, status: "ok", summary: outcome.value.summary };
+      rows[index] = { index, file, variant, status: "ok", summary: outcome.value.summary };
     } else {
-      rows[index] = { ...head, status: "error", error: outcome.value.error };
+      rows[index] = { index, file, variant, status: "error", error: outcome.value.error };
     }
   });
   return rows;
