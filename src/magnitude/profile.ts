@@ -75,18 +75,21 @@ export function expectedMaxElement(m: Moments, rms: number, n: number): number {
 }
 
 /**
- * expectedMaxAbsGaussian by element count: tensors of one network share a few counts, and each profile needs it, so
- * the last few hundred are remembered (the same function of n, so the same value).
+ * expectedMaxAbsGaussian by whole element count, in a small direct-mapped table (slot n mod 256): tensors of one
+ * network share a few counts and each profile needs one, while counts that vary from layer to layer (fractional, or
+ * scaled by a share of zeros) simply overwrite a slot. The stored value is the function's own, so results do not change.
  */
-const gaussianMaxCache = new Map<number, number>();
+const GAUSSIAN_MAX_SLOTS = 256;
+const gaussianMaxKey = new Float64Array(GAUSSIAN_MAX_SLOTS).fill(-1);
+const gaussianMaxValue = new Float64Array(GAUSSIAN_MAX_SLOTS);
 
 function gaussianMaxOf(n: number): number {
-  let max = gaussianMaxCache.get(n);
-  if (max === undefined) {
-    max = expectedMaxAbsGaussian(n);
-    if (gaussianMaxCache.size >= 512) gaussianMaxCache.clear();
-    gaussianMaxCache.set(n, max);
-  }
+  if (!(n >= 1 && n < 2147483648 && Number.isInteger(n))) return expectedMaxAbsGaussian(n);
+  const slot = n & (GAUSSIAN_MAX_SLOTS - 1);
+  if (gaussianMaxKey[slot] === n) return gaussianMaxValue[slot] as number;
+  const max = expectedMaxAbsGaussian(n);
+  gaussianMaxKey[slot] = n;
+  gaussianMaxValue[slot] = max;
   return max;
 }
 

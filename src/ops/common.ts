@@ -25,14 +25,20 @@ export function textOf(text: Text): string {
 
 /** The named weight of a layer; throws when the graph lacks it (a graph builder bug, not user input). */
 export function weightOf(layer: GraphLayer, name: string): GraphWeight {
-  const found = layer.weights.find((w) => w.name === name);
+  const found = maybeWeight(layer, name);
   if (found === undefined) throw new RangeError(`layer ${layer.name} has no weight "${name}"`);
   return found;
 }
 
 /** The named weight, or undefined (optional biases). */
 export function maybeWeight(layer: GraphLayer, name: string): GraphWeight | undefined {
-  return layer.weights.find((w) => w.name === name);
+  // a plain loop: called for every layer in both passes, where find() would make a closure each time
+  const weights = layer.weights;
+  for (let i = 0; i < weights.length; i++) {
+    const w = weights[i] as GraphWeight;
+    if (w.name === name) return w;
+  }
+  return undefined;
 }
 
 /** Format a number for a ledger rule: 4 significant digits, exponent form when far from 1. */
