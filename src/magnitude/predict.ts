@@ -192,7 +192,7 @@ class Phase {
     this.hazards.push(site);
   }
 
-  weightRecords(layer: GraphLayer): void {
+  weightRecords(layer: GraphLayer, prefix: string): void {
     const growth = this.phase === "end" ? this.spec.training.horizon.weightGrowth : 1;
     for (const w of layer.weights) {
       const variance = this.ctx.variance(w);
@@ -220,7 +220,7 @@ class Phase {
         node = chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true);
       }
       this.emit({
-        id: `${layer.name}/weight${w.name === "weight" ? "" : `:${w.name}`}`,
+        id: this.build ? (w.name === "weight" ? `${prefix}weight` : `${prefix}weight:${w.name}`) : "",
         layer: layer.name,
         layerIndex: layer.index,
         family: layer.family,
@@ -238,6 +238,8 @@ class Phase {
     let current = node;
     let resets = false;
     for (const layer of layers) {
+      // "<layer>/", the start of every id of the layer (made once; the end pass makes no ids)
+      const prefix = this.build ? `${layer.name}/` : "";
       this.prepareWeights(layer);
       const rule = ruleFor(layer.family);
       let branchResults = {};
@@ -247,10 +249,10 @@ class Phase {
       }
       const result = rule.forward(this.ctx, layer, signal, branchResults);
       this.stash[layer.index] = result.stash;
-      this.weightRecords(layer);
+      this.weightRecords(layer, prefix);
       for (const inner of result.inner) {
         this.emit({
-          id: this.build ? `${layer.name}/${inner.role}:${inner.suffix}` : "",
+          id: this.build ? `${prefix}${inner.role}:${inner.suffix}` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -266,7 +268,7 @@ class Phase {
       signal = result.output;
       if (NORMS.has(layer.family) || layer.family === "embedding" || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
       this.emit({
-        id: this.build ? `${layer.name}/${result.role}` : "",
+        id: this.build ? prefix + result.role : "",
         layer: layer.name,
         layerIndex: layer.index,
         family: layer.family,
@@ -286,9 +288,10 @@ class Phase {
     let current = node;
     for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
       const layer = layers[i] as GraphLayer;
+      const prefix = this.build ? `${layer.name}/` : "";
       if (!(seeded && i === layers.length - 1)) {
         this.emit({
-          id: this.build ? `${layer.name}/activation-gradient` : "",
+          id: this.build ? `${prefix}activation-gradient` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -319,7 +322,7 @@ class Phase {
       }
       for (const inner of result.inner) {
         this.emit({
-          id: this.build ? `${layer.name}/activation-gradient:${inner.suffix}` : "",
+          id: this.build ? `${prefix}activation-gradient:${inner.suffix}` : "",
           layer: layer.name,
           layerIndex: layer.index,
           family: layer.family,
@@ -330,7 +333,7 @@ class Phase {
           ledger: chain(current, layer.name, inner.factors, this.build),
         });
       }
-      for (const wg of result.weightGradients) this.weightGradient(layer, wg, current, gradient.q);
+      for (const wg of result.weightGradients) this.weightGradient(layer, prefix, wg, current, gradient.q);
       current = chain(current, layer.name, result.factors, this.build);
       gradient = result.input;
     }
@@ -342,7 +345,7 @@ class Phase {
    * (each already divided by the accumulation steps A through the loss) add up incoherently, A·q; the workers'
    * gradients add up the same way, W·q, and averaging divides by W (q/W²).
    */
-  weightGradient(layer: GraphLayer, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
+  weightGradient(layer: GraphLayer, prefix: string, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
     let weight: GraphWeight | undefined;
     for (const w of layer.weights) {
       if (w.name === wg.weight) {
@@ -363,7 +366,7 @@ class Phase {
     const profile = profileOf({ q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W), shape: "gaussian", logVar: wg.logVar }, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
-    const id = this.build ? `${layer.name}/weight-gradient${wg.weight === "weight" ? "" : `:${wg.weight}`}` : "";
+    const id = this.build ? (wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`) : "";
     const factors: Factor[] = [];
     if (this.build) {
       // the wording keeps only the rule, not the whole moment, alive until the ledger is read
