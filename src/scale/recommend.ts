@@ -8,7 +8,7 @@ import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitud
 import { energyBelowExceeds, probabilityAnyAboveBounds } from "../risk/bounds.js";
 import { anyOf, normalSf } from "../risk/_math.js";
 import { elementLaw, isConstantLike, isEmpty, nonzeroElements } from "../risk/laws.js";
-import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, type LossScaleCurves, type RangeLimits } from "../risk/index.js";
+import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, riskProfile, sameDistribution, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
@@ -81,7 +81,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
-  const curves = withTighterBounds(lossScaleCurves(prediction.tensors, limits), prediction.tensors, limits);
+  const curves = boundedLossScaleCurves(prediction.tensors, limits);
   const ids = new Set(curves.map((c) => c.id));
   const gradients = prediction.tensors.filter((t) => ids.has(t.id));
   const window = lossScaleWindow(curves, windowOptions);
@@ -111,42 +111,93 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
 }
 
 /**
- * The curves with tighter upper bounds on offer (the segment bounds below, at the worse of the start and end
- * profiles, as the curves take): the window's searches then integrate only the tensors that come near the budget or
- * the tolerance. Values and cheap bounds are the curves' own; each exponent's tighter bound is kept.
+ * The loss-scale curves of {@link lossScaleCurves}, with tighter upper bounds on offer (the segment bounds below) and
+ * values computed with fewer integrals: a curve's value is the worse of the start and end profiles' (as the curves
+ * take it), and when one profile's segment bound lies below the other's value the other is not integrated. Values
+ * equal the curves' own (test/scale/recommend-bounds.test.ts); the window's searches then integrate only the tensors
+ * that come near the budget or the tolerance.
  */
-function withTighterBounds(curves: LossScaleCurves[], tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
+export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
   const byId = new Map(tensors.map((t) => [t.id, t] as const));
-  return curves.map((c) => {
-    const tensor = byId.get(c.id);
-    if (tensor === undefined) return c;
-    const { start, end } = tensor;
-    const overflowUppers = new Map<number, number>();
-    const flushUppers = new Map<number, number>();
+  return lossScaleCurves(tensors, limits).map((c) => {
+    const tensor = byId.get(c.id)!;
+    const same = sameDistribution(tensor.start, tensor.end);
+    const start = riskProfile(tensor.start);
+    const end = same ? start : riskProfile(tensor.end);
+    // per exponent: the value once known, and each profile's segment upper bound
+    const overflows = new Map<number, number>();
+    const flushes = new Map<number, number>();
+    const overflowUppers = new Map<number, readonly [number, number]>();
+    const flushUppers = new Map<number, readonly [number, number]>();
+    const overflowUpper = (k: number): readonly [number, number] => {
+      let uppers = overflowUppers.get(k);
+      if (uppers === undefined) {
+        const level = limits.overflowLevel * 2 ** -k;
+        const a = probabilityAnyAboveUpper(start, level);
+        uppers = [a, same ? a : probabilityAnyAboveUpper(end, level)];
+        overflowUppers.set(k, uppers);
+      }
+      return uppers;
+    };
+    const flushUpper = (k: number): readonly [number, number] => {
+      let uppers = flushUppers.get(k);
+      if (uppers === undefined) {
+        const bound = limits.flushBound * 2 ** -k;
+        const a = energyBelowUpper(start, bound);
+        uppers = [a, same ? a : energyBelowUpper(end, bound)];
+        flushUppers.set(k, uppers);
+      }
+      return uppers;
+    };
+    // the worse of f(start) and f(end), as the curves take it, skipping the profile whose upper bound is below the
+    // other's value (the larger of two values is the one the other cannot reach)
+    const worse = (f: (p: MagnitudeProfile) => number, uppers: readonly [number, number]): number => {
+      if (same) return f(start);
+      const [first, second, secondUpper] = uppers[0] >= uppers[1] ? [start, end, uppers[1]] : [end, start, uppers[0]];
+      const a = f(first);
+      if (secondUpper <= a) return a;
+      return Math.max(f(start), f(end));
+    };
     return {
       id: c.id,
       edgeGuessesLog2: c.edgeGuessesLog2,
-      overflowRisk: (k) => c.overflowRisk(k),
-      flushedEnergy: (k) => c.flushedEnergy(k),
-      overflowRiskBounds: (k) => c.overflowRiskBounds(k),
-      flushedEnergyBounds: (k) => c.flushedEnergyBounds(k),
-      overflowRiskUpper(k) {
-        let upper = overflowUppers.get(k);
-        if (upper === undefined) {
+      overflowRisk(k) {
+        let value = overflows.get(k);
+        if (value === undefined) {
           const level = limits.overflowLevel * 2 ** -k;
-          upper = Math.max(probabilityAnyAboveUpper(start, level), probabilityAnyAboveUpper(end, level));
-          overflowUppers.set(k, upper);
+          value = worse((p) => probabilityAnyAbove(p, level), overflowUpper(k));
+          overflows.set(k, value);
         }
-        return upper;
+        return value;
+      },
+      flushedEnergy(k) {
+        let value = flushes.get(k);
+        if (value === undefined) {
+          const bound = limits.flushBound * 2 ** -k;
+          value = worse((p) => energyBelow(p, bound), flushUpper(k));
+          flushes.set(k, value);
+        }
+        return value;
+      },
+      overflowRiskBounds(k) {
+        const value = overflows.get(k);
+        return value === undefined ? c.overflowRiskBounds(k) : [value, value];
+      },
+      flushedEnergyBounds(k) {
+        const value = flushes.get(k);
+        return value === undefined ? c.flushedEnergyBounds(k) : [value, value];
+      },
+      overflowRiskUpper(k) {
+        const value = overflows.get(k);
+        if (value !== undefined) return value;
+        const [a, b] = overflowUpper(k);
+        return Math.max(a, b);
       },
       flushedEnergyUpper(k) {
-        let upper = flushUppers.get(k);
-        if (upper === undefined) {
-          const bound = limits.flushBound * 2 ** -k;
-          upper = Math.max(energyBelowUpper(start, bound), energyBelowUpper(end, bound));
-          flushUppers.set(k, upper);
-        }
-        return upper;
+        const value = flushes.get(k);
+        if (value !== undefined) return value;
+        const [a, b] = flushUpper(k);
+        return Math.max(a, b);
       },
     };
   });
@@ -429,7 +480,7 @@ function rankRemedies(
   // 3. bfloat16 gradients: the same tensors against bfloat16's range
   if (plan.gradients !== "bfloat16") {
     const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
-    const bfCurves = lossScaleCurves([...byId.values()], bf);
+    const bfCurves = boundedLossScaleCurves([...byId.values()], bf);
     const w = lossScaleWindow(bfCurves, options);
     remedies.push({
       kind: "bfloat16-gradients",

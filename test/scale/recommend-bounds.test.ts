@@ -2,9 +2,10 @@
 // draw integrals of src/risk/profile.ts from above, for every element shape, spread, size and threshold; and they
 // must be tight enough in the tail to be worth having.
 import { describe, expect, it } from "vitest";
-import type { ElementShape, MagnitudeProfile } from "../../src/magnitude/types.js";
-import { energyBelow, probabilityAnyAbove } from "../../src/risk/index.js";
-import { energyBelowUpper, probabilityAnyAboveUpper } from "../../src/scale/recommend.js";
+import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
+import { energyBelow, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../../src/risk/index.js";
+import { boundedLossScaleCurves, energyBelowUpper, probabilityAnyAboveUpper } from "../../src/scale/recommend.js";
+import { lossScaleWindow } from "../../src/scale/window.js";
 
 const SHAPES: { shape: ElementShape; bound?: number; elementLog2Spread?: number }[] = [
   { shape: "gaussian" },
@@ -65,5 +66,59 @@ describe("segment upper bounds", () => {
     expect(probabilityAnyAboveUpper(p, t)).toBeLessThan(1000 * probabilityAnyAbove(p, t));
     // and the flushed energy far below the rms
     expect(energyBelowUpper(p, 2 ** -30)).toBeLessThan(1e-6);
+  });
+});
+
+describe("boundedLossScaleCurves", () => {
+  // gradients whose start and end differ (a factor of 2^±30 in rms, other spreads), and some that do not change
+  const tensors: TensorPrediction[] = [];
+  let n = 0;
+  for (const s of SHAPES) {
+    for (const [startRms, endRms, startSpread, endSpread] of [
+      [1e-4, 1e-4, 0.3, 0.3],
+      [1e-4, 1e5, 1.5, 1.6],
+      [3e-3, 3e-12, 0.02, 2.25],
+      [1, 1, 0, 0],
+    ] as const) {
+      const profile = (rms: number, log2Spread: number): MagnitudeProfile => ({ elements: 65_536, zeroFraction: 0.25, rms, log2Spread, ...s });
+      tensors.push({
+        id: `g${n++}`,
+        layer: "d",
+        layerIndex: 0,
+        family: "dense",
+        role: n % 2 === 0 ? "activation-gradient" : "weight-gradient",
+        slot: "gradients",
+        shape: [65_536],
+        start: profile(startRms, startSpread),
+        end: profile(endRms, endSpread),
+        ledger: [],
+        source: "predicted",
+      });
+    }
+  }
+  // binary16's overflow level and flush bound (IEEE 754-2019: largest finite 65504, half the smallest subnormal 2^-25)
+  const limits = { overflowLevel: 65504, flushBound: 2 ** -25 } as RangeLimits;
+
+  it("give the curves' own values, bit for bit, with valid tighter upper bounds", () => {
+    const plain = lossScaleCurves(tensors, limits);
+    const bounded = boundedLossScaleCurves(tensors, limits);
+    expect(bounded.map((c) => c.id)).toEqual(plain.map((c) => c.id));
+    for (let k = -40; k <= 64; k += 3) {
+      bounded.forEach((c, i) => {
+        const p = plain[i]!;
+        // the upper bounds first (asked before the value, as the searches do), then the values
+        const overflowUpper = c.overflowRiskUpper!(k);
+        const flushUpper = c.flushedEnergyUpper!(k);
+        expect(c.overflowRisk(k)).toBe(p.overflowRisk(k));
+        expect(c.flushedEnergy(k)).toBe(p.flushedEnergy(k));
+        expect(overflowUpper).toBeGreaterThanOrEqual(p.overflowRisk(k));
+        expect(flushUpper).toBeGreaterThanOrEqual(p.flushedEnergy(k));
+      });
+    }
+  });
+
+  it("give the window the plain curves give", () => {
+    const plain = lossScaleWindow(lossScaleCurves(tensors, limits));
+    expect(lossScaleWindow(boundedLossScaleCurves(tensors, limits))).toEqual(plain);
   });
 });
