@@ -10,9 +10,19 @@
 // tabs, CR, backslashes (escapes), characters YAML does not allow or JavaScript trims as spaces; document markers
 const REFUSED = /[\x00-\x09\x0b-\x1f\x7f-\x9f\ud800-\udfff\u2028\u2029\ufeff\ufffe\uffff\\]|^(?:---|\.\.\.|%)/m;
 
-// YAML's white space here is the space alone (tabs are refused), not JavaScript's wider set
-const trimStart = (text: string): string => text.replace(/^ +/, "");
-const trimEnd = (text: string): string => text.replace(/ +$/, "");
+// YAML's white space here is the space alone (tabs are refused), not JavaScript's wider set; loops, not
+// regular expressions: they run twice a line
+function trimStart(text: string): string {
+  let start = 0;
+  while (text.charCodeAt(start) === 32) start++;
+  return start === 0 ? text : text.slice(start);
+}
+
+function trimEnd(text: string): string {
+  let end = text.length;
+  while (end > 0 && text.charCodeAt(end - 1) === 32) end--;
+  return end === text.length ? text : text.slice(0, end);
+}
 
 /** Thrown inside the reader when the text leaves the plain subset; never escapes it. */
 class NotPlain extends Error {}
