@@ -403,7 +403,7 @@ export function ruleOverDraws(rms: number, log2Spread: number, f: (r: number) =>
   const low = nodeValue(0);
   const high = nodeValue(VALUES.length - 1);
   if (low === high) return Math.min(1, Math.max(0, low));
-  return ruleSum();
+  return ruleSum(false);
 }
 
 // The draw sum of the current integrand: the Simpson sum over the nodes (or the coarse sum it accepts, see
@@ -424,7 +424,7 @@ function drawSum(rms: number, log2Spread: number): number {
     const sum = monotoneSum(high > low);
     if (!Number.isNaN(sum)) return Math.min(1, Math.max(0, sum));
   }
-  return ruleSum();
+  return ruleSum(true);
 }
 
 // the draw of the current sum, and which nodes' values VALUES holds (KNOWN[i] === drawStamp)
@@ -442,7 +442,7 @@ function nodeValue(i: number): number {
 }
 
 // The rule's own sums, from the nodes' values (each node evaluated at most once per sum).
-function ruleSum(): number {
+function ruleSum(trim: boolean): number {
   const { w } = DRAW_NODES;
   const values = VALUES;
   const last = values.length - 1;
@@ -456,6 +456,30 @@ function ruleSum(): number {
   if (Math.abs(half - threeQuarter) <= COARSE_AGREEMENT * Math.abs(half) && ends <= COARSE_END_SHARE * Math.abs(half)) {
     return Math.min(1, Math.max(0, half));
   }
+  // A monotone f ≥ 0 is smallest at one end: the nodes beyond a coarse node c there carry at most f_c times their
+  // weight, so where that is below TAIL_TOLERANCE of a lower bound of the sum (and of its complement) the nodes
+  // there take the midpoint of their coarse neighbours instead of an evaluation (the rule's sum to within that bound).
+  let lowCut = 0;
+  let highCut = last;
+  if (trim) {
+    const rising = high > low;
+    let floor = Infinity;
+    let bound = 0;
+    for (let i = 0; i <= last; i += HALF_STRIDE) {
+      const value = values[i] as number;
+      if (!(value >= 0)) floor = 0;
+      const below = value * (rising ? (SUFFIX[i] as number) : (PREFIX[i + 1] as number));
+      if (below > bound) bound = below;
+    }
+    const budget = TAIL_TOLERANCE * Math.min(floor, bound, 1 - half);
+    if (budget > 0) {
+      if (rising) {
+        for (let c = HALF_STRIDE; c < last && (values[c] as number) * (PREFIX[c] as number) <= budget; c += HALF_STRIDE) lowCut = c;
+      } else {
+        for (let c = last - HALF_STRIDE; c > 0 && (values[c] as number) * (SUFFIX[c + 1] as number) <= budget; c -= HALF_STRIDE) highCut = c;
+      }
+    }
+  }
   // f is monotone, so between two evaluated nodes of equal value (a share already 0 or 1, a probability that
   // underflows) every node has that value: the sum is the Simpson sum, with the flat stretches not re-evaluated
   for (let i = 1; i < last; i++) {
@@ -464,6 +488,7 @@ function ruleSum(): number {
     const next = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
     const before = values[previous] as number;
     if (before === values[next]) values[i] = before;
+    else if (i < lowCut || i > highCut) values[i] = 0.5 * (before + (values[next] as number));
     else nodeValue(i);
   }
   let sum = (w[0] as number) * low + (w[last] as number) * high;
@@ -481,6 +506,7 @@ const MONOTONE_TOLERANCE = 1e-9;
 const MONOTONE_START_STRIDE = 24;
 const MONOTONE_EVALUATIONS = 24;
 const NEAR_ONE = 1e-6;
+const TAIL_TOLERANCE = 1e-10;
 const MONOTONE_MIDDLE = (DRAW_NODES.w.length - 1) / 2;
 // PREFIX[i]: the weight of nodes below i; SUFFIX[i]: of nodes at and above i (both summed from their own end,
 // so the small weights of the far nodes keep their relative precision)
