@@ -1,0 +1,47 @@
+/**
+ * allBelowZero (src/ops/activation/analytic.ts) tables the fixed parts of its quadrature and memoises by number keys.
+ * These checks hold it to the direct evaluation of its documented rule (composite 12-point Gauss–Legendre on [−9, 9]
+ * of the one-factor integral, Dunnett & Sobel 1955, from memory), written out here term by term as the function
+ * first did it: the tabled form must give the same doubles, and a memoised answer the same value as a fresh one.
+ * Outside anchors: Sheppard's P(u₁ ≤ 0, u₂ ≤ 0) = 1/4 + arcsin(c)/2π (Sheppard 1899) and 2^−n at c = 0.
+ */
+import { describe, expect, it } from "vitest";
+import { allBelowZero } from "../../src/ops/activation/analytic.js";
+import { gaussLegendre, normalCdf, normalPdf } from "../../src/numeric/index.js";
+
+function direct(c: number, n: number): number {
+  const r = Math.sqrt(c / (1 - c));
+  const rule = gaussLegendre(12);
+  const limit = 9;
+  const panels = 12;
+  const width = (2 * limit) / panels;
+  let sum = r > 1 ? normalCdf(-limit / r) : 0;
+  for (let p = 0; p < panels; p++) {
+    const mid = -limit + (p + 0.5) * width;
+    for (let i = 0; i < rule.nodes.length; i++) {
+      const x = mid + 0.5 * width * (rule.nodes[i] as number);
+      const w = 0.5 * width * (rule.weights[i] as number);
+      sum += r > 1 ? (w / r) * normalPdf(x / r) * Math.pow(normalCdf(-x), n) : w * normalPdf(x) * Math.pow(normalCdf(-r * x), n);
+    }
+  }
+  return sum;
+}
+
+describe("allBelowZero with tabled nodes", () => {
+  it("gives the direct evaluation's doubles over a sweep of correlations and counts", () => {
+    for (const n of [1, 2, 3, 7, 32, 100, 1000, 4096, 65536]) {
+      for (let k = 1; k < 40; k++) {
+        const c = k / 40 + 1e-3 * Math.sin(k * n);
+        if (!(c > 0 && c < 1)) continue;
+        expect(allBelowZero(c, n)).toBe(direct(c, n));
+        // a second call comes from the memo and must agree
+        expect(allBelowZero(c, n)).toBe(direct(c, n));
+      }
+    }
+  });
+
+  it("meets Sheppard's two-variable orthant probability (Sheppard 1899) and 2^−n at c = 0", () => {
+    for (const c of [0.1, 0.3, 0.5, 0.7, 0.9]) expect(allBelowZero(c, 2)).toBeCloseTo(0.25 + Math.asin(c) / (2 * Math.PI), 6);
+    expect(allBelowZero(0, 10)).toBe(Math.pow(2, -10));
+  });
+});
