@@ -9,7 +9,7 @@
  */
 import type { Format } from "../formats/index.js";
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, fractionBelow, nonzeroElements, sameDistribution } from "../risk/index.js";
+import { elementLaw, fractionBelow, nonzeroElements } from "../risk/index.js";
 
 /** What the swamping sum needs of a format: its precision p and the exponent of its smallest normal. */
 export type SwampingFormat = Pick<Format, "precision" | "emin">;
@@ -71,8 +71,6 @@ function weightBinades(weight: MagnitudeProfile): WeightBinades {
 class UpdateShares implements SharesByExponent {
   private base = 0;
   private values = new Float64Array(0);
-  /** the lost shares already summed against it, by weight */
-  readonly sums = new Map<object, readonly number[]>();
 
   constructor(private readonly below: (t: number) => number) {}
 
@@ -119,35 +117,78 @@ export function lawOf(profile: MagnitudeProfile, zeroFraction = 0): MagnitudePro
   return law;
 }
 
-// Values derived from the law of a profile (lawOf), shared by every profile with an equal law: found by rms,
-// then by the fields the risk numbers read.
-class ByLaw<T> {
-  private readonly entries = new Map<number, { law: MagnitudeProfile; value: T }[]>();
+// The tables of every law met so far, shared by every assessment (a batch meets the same layers and learning
+// rates spec after spec): found by rms, then by the fields the shares read (lawOf), compared without building the
+// law. Keyed by those numbers only; cleared when they pass a bound, so a long-running worker does not grow without end.
+const TABLES_LIMIT = 4096;
+let tableCount = 0;
 
-  constructor(private readonly derive: (law: MagnitudeProfile) => T) {}
+interface WeightEntry {
+  law: MagnitudeProfile;
+  binades: WeightBinades | null;
+}
 
-  get(law: MagnitudeProfile): T {
-    let list = this.entries.get(law.rms);
-    if (list === undefined) {
-      list = [];
-      this.entries.set(law.rms, list);
-    }
-    for (const entry of list) if (sameDistribution(entry.law, law)) return entry.value;
-    const value = this.derive(law);
-    list.push({ law, value });
-    return value;
-  }
+interface UpdateEntry {
+  law: MagnitudeProfile;
+  shares: UpdateShares;
+  /** lost shares already summed against a weight: precision, emin and the share, in threes */
+  sums: Map<WeightEntry, number[]>;
+}
+
+const WEIGHTS = new Map<number, WeightEntry[]>();
+const UPDATES = new Map<number, UpdateEntry[]>();
+
+// whether `law` (made by lawOf) is the law of `profile` with its zero share set to `zeroFraction`
+function isLawOf(law: MagnitudeProfile, profile: MagnitudeProfile, zeroFraction: number): boolean {
+  return (
+    law.log2Spread === profile.log2Spread &&
+    law.shape === profile.shape &&
+    law.zeroFraction === zeroFraction &&
+    law.bound === profile.bound &&
+    law.elementLog2Spread === profile.elementLog2Spread &&
+    law.elements === (nonzeroElements(profile) > 0 ? 1 : 0)
+  );
+}
+
+function room(): void {
+  if (tableCount < TABLES_LIMIT) return;
+  WEIGHTS.clear();
+  UPDATES.clear();
+  tableCount = 0;
+}
+
+function weightEntry(weight: MagnitudeProfile): WeightEntry {
+  const list = WEIGHTS.get(weight.rms);
+  if (list !== undefined) for (const entry of list) if (isLawOf(entry.law, weight, weight.zeroFraction)) return entry;
+  room();
+  const law = lawOf(weight, weight.zeroFraction);
+  const entry: WeightEntry = { law, binades: law.rms > 0 ? weightBinades(law) : null };
+  const home = WEIGHTS.get(weight.rms);
+  if (home === undefined) WEIGHTS.set(weight.rms, [entry]);
+  else home.push(entry);
+  tableCount++;
+  return entry;
+}
+
+function updateEntry(update: MagnitudeProfile): UpdateEntry {
+  const list = UPDATES.get(update.rms);
+  if (list !== undefined) for (const entry of list) if (isLawOf(entry.law, update, 0)) return entry;
+  room();
+  const law = lawOf(update);
+  const entry: UpdateEntry = { law, shares: new UpdateShares(shareBelow(law)), sums: new Map() };
+  const home = UPDATES.get(update.rms);
+  if (home === undefined) UPDATES.set(update.rms, [entry]);
+  else home.push(entry);
+  tableCount++;
+  return entry;
 }
 
 /**
  * The swamping sums of one assessment against a fixed list of formats. Weights of equal laws (the layers of one
  * width) share their binade masses, updates of equal laws (Adam's, set by the learning rate alone) their shares,
- * and each pair of the two its sums.
+ * and each pair of the two its sums, within an assessment and across assessments.
  */
 export class SwampingSums {
-  private readonly weights = new ByLaw((weight) => ({ weight, binades: weight.rms > 0 ? weightBinades(weight) : null }));
-  private readonly updates = new ByLaw((update) => new UpdateShares(shareBelow(update)));
-
   // for each format, the first of the list with its precision and range: equal formats share one sum
   private readonly first: number[];
 
@@ -157,16 +198,34 @@ export class SwampingSums {
 
   /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
   lost(weight: MagnitudeProfile, update: MagnitudeProfile): readonly number[] {
-    const w = this.weights.get(lawOf(weight, weight.zeroFraction));
-    const shares = this.updates.get(lawOf(update));
-    const known = shares.sums.get(w);
-    if (known !== undefined) return known;
+    const w = weightEntry(weight);
+    const u = updateEntry(update);
+    let known = u.sums.get(w);
+    if (known === undefined) {
+      known = [];
+      u.sums.set(w, known);
+    }
     const lost: number[] = [];
     for (let i = 0; i < this.formats.length; i++) {
       const same = this.first[i] as number;
-      lost.push(same < i ? (lost[same] as number) : sumLost(w.weight, w.binades, shares, this.formats[i] as SwampingFormat));
+      if (same < i) {
+        lost.push(lost[same] as number);
+        continue;
+      }
+      const format = this.formats[i] as SwampingFormat;
+      let value = NaN;
+      for (let j = 0; j < known.length; j += 3) {
+        if (known[j] === format.precision && known[j + 1] === format.emin) {
+          value = known[j + 2] as number;
+          break;
+        }
+      }
+      if (Number.isNaN(value)) {
+        value = sumLost(w.law, w.binades, u.shares, format);
+        known.push(format.precision, format.emin, value);
+      }
+      lost.push(value);
     }
-    shares.sums.set(w, lost);
     return lost;
   }
 }

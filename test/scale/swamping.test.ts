@@ -159,3 +159,20 @@ describe("SwampingSums (the optimizer check's swamping sums over shared tables)"
     expectSame(sums.lost({ ...weight, zeroFraction: 0.5 }, update)[0] as number, referenceSwampedShare({ ...weight, zeroFraction: 0.5 }, update, binary16));
   });
 });
+
+describe("SwampingSums tables shared across assessments", () => {
+  it("an assessment with other formats meeting laws an earlier one met sums its own formats", () => {
+    const weight: MagnitudeProfile = { elements: 4096, zeroFraction: 0.25, shape: "gaussian", rms: 0.03, log2Spread: 0 };
+    const update: MagnitudeProfile = { elements: 4096, zeroFraction: 0.5, shape: "gaussian", rms: 3e-6, log2Spread: 1.2 };
+    const binary16 = getFormat("binary16");
+    const bfloat16 = getFormat("bfloat16");
+    const binary32 = getFormat("binary32");
+    const first = new SwampingSums([binary16, binary32]).lost(weight, update);
+    const second = new SwampingSums([bfloat16, binary16, { precision: 22, emin: binary16.emin }]).lost({ ...weight }, { ...update });
+    expectSame(first[0] as number, referenceSwampedShare(weight, update, binary16));
+    expectSame(first[1] as number, referenceSwampedShare(weight, update, binary32));
+    expectSame(second[0] as number, referenceSwampedShare(weight, update, bfloat16));
+    expect(second[1]).toBe(first[0]);
+    expectSame(second[2] as number, referenceSwampedShare(weight, update, { precision: 22, emin: binary16.emin }));
+  });
+});
