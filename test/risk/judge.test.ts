@@ -1,6 +1,16 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
-import { findTensor, judgePrediction, planFor, planFormats } from "../../src/risk/index.js";
+import {
+  DEFAULT_THRESHOLDS,
+  evaluateHazard,
+  findTensor,
+  judgePrediction,
+  limitsFor,
+  planFor,
+  planFormats,
+  tensorFormatRisk,
+  tensorStatistics,
+} from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
@@ -117,6 +127,52 @@ describe("judgePrediction", () => {
     expect(JSON.parse(JSON.stringify(result))).toEqual(result);
     expect(result.caution).toMatch(/estimates/);
     expect(result.caution).toMatch(/short run of a few hundred steps/);
+  });
+
+  it("evaluates a site once per plan: each format keeps what evaluating the site under its own plan gives", () => {
+    const s = spec();
+    const result = judgePrediction(s, PREDICTION, { formats: ["binary16", "binary32", "bfloat16"], lossScale: 8 });
+    for (const hazard of result.hazards) {
+      for (const format of ["binary16", "binary32", "bfloat16"] as const) {
+        const plan = planFor(s.precision, format);
+        const alone = evaluateHazard(
+          { kind: hazard.kind, layer: hazard.layer, input: hazard.input, terms: hazard.terms, guarded: hazard.guarded, detail: hazard.detail, ...(hazard.constant === undefined ? {} : { constant: hazard.constant }) },
+          {
+            activations: limitsFor(plan, plan.activations),
+            gradients: limitsFor(plan, plan.gradients),
+            optimizerStates: limitsFor(plan, plan.optimizerStates),
+            accumulate: limitsFor(plan, plan.accumulate),
+            lossScale: 8,
+            beta2: s.training.optimizer.betas[1],
+            workerGradients: s.training.workerGradients,
+            workers: s.training.workers,
+            thresholds: DEFAULT_THRESHOLDS,
+          },
+          hazard.origin,
+        );
+        expect(hazard.evaluations.filter((e) => e.format === format)).toEqual(alone.evaluations.filter((e) => e.format === format));
+        expect(hazard.findings.filter((f) => f.format === format)).toEqual(alone.findings.filter((f) => f.format === format));
+      }
+    }
+  });
+
+  it("gives every tensor the numbers tensorStatistics and tensorFormatRisk give it alone", () => {
+    const s = spec();
+    const result = judgePrediction(s, PREDICTION, { lossScale: 64, everyFormat: true });
+    PREDICTION.tensors.forEach((t, i) => {
+      const checked = result.tensors[i];
+      const statistics = tensorStatistics(t, 64, DEFAULT_THRESHOLDS);
+      expect(checked?.statistics).toEqual(statistics);
+      for (const risk of checked?.risks ?? []) {
+        const plan = planFor(s.precision, risk.format);
+        const alone = tensorFormatRisk(t, limitsFor(plan, risk.format), statistics, {
+          judged: risk.judged,
+          perTensorScaling: false,
+          thresholds: DEFAULT_THRESHOLDS,
+        });
+        expect(risk).toEqual(alone);
+      }
+    });
   });
 
   it("rejects an unknown format and a non-positive loss scale with a RangeError echoing the value", () => {

@@ -5,6 +5,8 @@ import {
   FINDING_INFO,
   FINDING_KINDS,
   judge,
+  riskProfile,
+  scaleProfile,
   tensorFormatRisk,
   tensorStatistics,
   type RiskThresholds,
@@ -31,6 +33,18 @@ function tensor(partial: Partial<TensorPrediction> & Pick<TensorPrediction, "sta
 }
 
 const options = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS as RiskThresholds };
+
+describe("riskProfile", () => {
+  it("is scaleProfile's copy with only the fields the risk numbers read (those sameDistribution compares)", () => {
+    const full: MagnitudeProfile = { ...profile({ shape: "bounded", bound: 3, rms: 0.5 }), meanSquare: 0.2, maxElement: 2, coherentRms: 4 };
+    expect(riskProfile(full, 8)).toEqual({ elements: 1e5, zeroFraction: 0, shape: "bounded", rms: 4, log2Spread: 0, bound: 24 });
+    const scaled = scaleProfile(full, 8);
+    expect(riskProfile(full, 8)).toEqual({ elements: scaled.elements, zeroFraction: scaled.zeroFraction, shape: scaled.shape, rms: scaled.rms, log2Spread: scaled.log2Spread, bound: scaled.bound });
+    const logNormal = profile({ shape: "log-normal", elementLog2Spread: 1.5 });
+    expect(riskProfile(logNormal)).toEqual(logNormal);
+    expect("bound" in riskProfile(logNormal)).toBe(false);
+  });
+});
 
 describe("tensorFormatRisk", () => {
   it("keeps the worse of start and end, and says when", () => {
