@@ -11,7 +11,7 @@ import { elementLaw, isConstantLike, isEmpty, nonzeroElements } from "../risk/la
 import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, riskProfile, sameDistribution, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
-import { lossScaleWindow, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
+import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
 export interface ScaleRemedy {
@@ -84,7 +84,9 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const curves = boundedLossScaleCurves(prediction.tensors, limits);
   const ids = new Set(curves.map((c) => c.id));
   const gradients = prediction.tensors.filter((t) => ids.has(t.id));
-  const window = lossScaleWindow(curves, windowOptions);
+  // the remedies' windows are this one with tensors set aside: one search serves them all
+  const windowWithout = lossScaleWindows(curves, windowOptions);
+  const window = windowWithout();
   const pick = window.pickLog2 === null ? null : 2 ** window.pickLog2;
   const requested =
     plan.lossScale === undefined
@@ -106,7 +108,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
       : null;
 
   const sentences = describe(window, format, windowOptions, requested);
-  const remedies = window.empty && dynamic ? rankRemedies(curves, byId, window, windowOptions, plan, dynamic) : [];
+  const remedies = window.empty && dynamic ? rankRemedies(windowWithout, byId, window, windowOptions, plan, dynamic) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
@@ -436,7 +438,7 @@ function describe(
 
 /** Remedies for an empty window, each with its effect computed, the working ones first and cheapest first. */
 function rankRemedies(
-  curves: ScaledTensorCurves[],
+  windowWithout: (setAside?: ReadonlySet<string>) => ScaleWindow,
   byId: Map<string, TensorPrediction>,
   window: ScaleWindow,
   options: WindowOptions,
@@ -449,13 +451,11 @@ function rankRemedies(
   for (const edge of ["lower", "upper"] as const) {
     const held: string[] = [];
     let current = window;
-    let remaining = curves;
     for (let i = 0; i < 6 && current.empty; i++) {
       const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
       if (!setter) break;
       held.push(setter);
-      remaining = remaining.filter((c) => c.id !== setter);
-      current = lossScaleWindow(remaining, options);
+      current = windowWithout(new Set(held));
     }
     if (held.length === 0) continue;
     const extra = held.reduce((sum, id) => sum + (byId.get(id)?.start.elements ?? 0) * (4 - gradientBytes), 0);

@@ -82,228 +82,331 @@ export interface ScaleWindow {
  * Each edge is found by galloping from the tensors' guesses and bisecting, a few evaluations per tensor.
  */
 export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options: Partial<WindowOptions> = {}): ScaleWindow {
+  return lossScaleWindows(tensors, options)();
+}
+
+/**
+ * The windows of a set of gradient tensors and of its subsets: `windowOf(setAside)` is
+ * `lossScaleWindow(tensors without those ids, options)`, each search reusing what the earlier ones learnt of each
+ * tensor (values, bounds, which tensors flush too much at an exponent). For trying tensors held in another format.
+ */
+export function lossScaleWindows(
+  tensors: readonly ScaledTensorCurves[],
+  options: Partial<WindowOptions> = {},
+): (setAside?: ReadonlySet<string>) => ScaleWindow {
   const o = { ...DEFAULT_WINDOW_OPTIONS, ...options };
   if (!(o.riskBudget > 0 && o.riskBudget < 1)) throw new RangeError(`riskBudget must lie in (0, 1). Value: ${o.riskBudget}`);
   if (!(o.flushTolerance > 0 && o.flushTolerance < 1)) {
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
-  // the tensors most likely to overflow first (lowest own overflow edge), then those most likely to flush (highest
-  // own flush edge): the searches decide sooner when the tensors that decide are integrated first
-  const overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
-  const flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
-  const overflowOk = (k: number) => riskWithin(tensors, overflowOrder, k, o.riskBudget);
-
-  // the window's overflow edge is at or below every tensor's own: start from the tightest guess (any start gives
-  // the same edge; a good one saves steps)
-  let overflowGuess = Infinity;
-  for (const t of tensors) {
-    if (t.edgeGuessesLog2 !== undefined) overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
-  }
-  const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
-  // highest k with overflowOk (monotone: true then false as k grows)
-  const highest = lastTrue(o.lowestLog2, o.highestLog2, overflowOk, Number.isFinite(overflowGuess) ? overflowGuess : middle);
-  // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
-  const lowest = flushEdge(tensors, flushOrder, o.lowestLog2, o.highestLog2, o.flushTolerance);
-
-  const upperEdgeSetBy =
-    highest === null ? worstRisk(tensors, overflowOrder, o.lowestLog2) : highest < o.highestLog2 ? worstRisk(tensors, overflowOrder, highest + 1) : null;
-  const lowerEdgeSetBy =
-    lowest === null
-      ? worstFlush(tensors, flushOrder, o.highestLog2).id
-      : lowest > o.lowestLog2
-        ? worstFlush(tensors, flushOrder, lowest - 1).id
-        : null;
-
-  const empty = highest === null || lowest === null || lowest > highest;
-  let pick: number | null = null;
-  if (!empty) {
-    // the centre in binades leaves the most room on both sides for the prediction's own error; a scale costs
-    // nothing until it overflows (Micikevicius et al. 2018 §3.2), so round up, but keep the margin below overflow
-    const centre = Math.ceil((lowest! + highest!) / 2);
-    pick = Math.max(lowest!, Math.min(centre, highest! - o.marginBinades));
-  }
-  return {
-    lowestLog2: lowest,
-    highestLog2: highest,
-    empty,
-    pickLog2: pick,
-    marginBelowOverflow: pick === null ? null : highest! - pick,
-    marginAboveFlush: pick === null ? null : pick - lowest!,
-    upperEdgeSetBy,
-    lowerEdgeSetBy,
-    gapBinades: empty && highest !== null && lowest !== null ? lowest - highest : null,
-    unscaledFits: !empty && lowest! <= 0 && 0 <= highest!,
+  const search = new WindowSearch(tensors, o);
+  return (setAside) => {
+    const active = new Uint8Array(tensors.length).fill(1);
+    if (setAside !== undefined) tensors.forEach((t, i) => (active[i] = setAside.has(t.id) ? 0 : 1));
+    return search.window(active);
   };
 }
 
-function totalRisk(tensors: readonly ScaledTensorCurves[], k: number): number {
-  // union bound over tensors: P(any overflows) ≤ Σ P(tensor overflows) (common practice)
-  let sum = 0;
-  for (const t of tensors) sum += t.overflowRisk(k);
-  return Math.min(1, sum);
+// What one exponent's search knows of each tensor for one of the two curves: the cheap bounds (all tensors at
+// once), tighter upper bounds and values (each once asked for), and for flushing whether it is tolerated.
+interface Table {
+  lows: Float64Array | null;
+  highs: Float64Array | null;
+  uppers: Float64Array | null;
+  values: Float64Array;
+  // per tensor: HAS_VALUE, HAS_UPPER, TOLERANCE_KNOWN, TOLERATED
+  flags: Uint8Array;
+}
+const HAS_VALUE = 1;
+const HAS_UPPER = 2;
+const TOLERANCE_KNOWN = 4;
+const TOLERATED = 8;
+
+type Curve = "overflow" | "flush";
+
+class WindowSearch {
+  private readonly n: number;
+  // the tensors most likely to overflow first (lowest own overflow edge), and those most likely to flush (highest own
+  // flush edge): the searches decide sooner when the tensors that decide are integrated first
+  private readonly overflowOrder: number[];
+  private readonly flushOrder: number[];
+  private readonly allBounded: boolean;
+  private readonly tables = { overflow: new Map<number, Table>(), flush: new Map<number, Table>() };
+
+  constructor(
+    private readonly tensors: readonly ScaledTensorCurves[],
+    private readonly o: WindowOptions,
+  ) {
+    this.n = tensors.length;
+    this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
+    this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
+    this.allBounded = tensors.every((t) => t.overflowRiskBounds !== undefined);
+  }
+
+  window(active: Uint8Array): ScaleWindow {
+    const o = this.o;
+    // the window's overflow edge is at or below every tensor's own: start from the tightest guess (any start gives
+    // the same edge; a good one saves steps)
+    let overflowGuess = Infinity;
+    this.tensors.forEach((t, i) => {
+      if (active[i] === 1 && t.edgeGuessesLog2 !== undefined) overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
+    });
+    const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
+    // highest k with the union bound within the budget (monotone: true then false as k grows)
+    const highest = lastTrue(o.lowestLog2, o.highestLog2, (k) => this.riskWithin(k, active), Number.isFinite(overflowGuess) ? overflowGuess : middle);
+    // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
+    const lowest = this.flushEdge(active);
+
+    const upperEdgeSetBy =
+      highest === null ? this.worst("overflow", o.lowestLog2, active).id : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active).id : null;
+    const lowerEdgeSetBy =
+      lowest === null ? this.worst("flush", o.highestLog2, active).id : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active).id : null;
+
+    const empty = highest === null || lowest === null || lowest > highest;
+    let pick: number | null = null;
+    if (!empty) {
+      // the centre in binades leaves the most room on both sides for the prediction's own error; a scale costs
+      // nothing until it overflows (Micikevicius et al. 2018 §3.2), so round up, but keep the margin below overflow
+      const centre = Math.ceil((lowest! + highest!) / 2);
+      pick = Math.max(lowest!, Math.min(centre, highest! - o.marginBinades));
+    }
+    return {
+      lowestLog2: lowest,
+      highestLog2: highest,
+      empty,
+      pickLog2: pick,
+      marginBelowOverflow: pick === null ? null : highest! - pick,
+      marginAboveFlush: pick === null ? null : pick - lowest!,
+      upperEdgeSetBy,
+      lowerEdgeSetBy,
+      gapBinades: empty && highest !== null && lowest !== null ? lowest - highest : null,
+      unscaledFits: !empty && lowest! <= 0 && 0 <= highest!,
+    };
+  }
+
+  private table(curve: Curve, k: number): Table {
+    let table = this.tables[curve].get(k);
+    if (table === undefined) {
+      const n = this.n;
+      table = { lows: null, highs: null, uppers: null, values: new Float64Array(n), flags: new Uint8Array(n) };
+      this.tables[curve].set(k, table);
+    }
+    return table;
+  }
+
+  // The cheap bounds of every tensor at k (a tensor without them: [−∞, ∞]); known values are applied by the callers.
+  private bounds(curve: Curve, k: number): Table & { lows: Float64Array; highs: Float64Array } {
+    const table = this.table(curve, k);
+    if (table.lows === null || table.highs === null) {
+      const lows = new Float64Array(this.n).fill(-Infinity);
+      const highs = new Float64Array(this.n).fill(Infinity);
+      this.tensors.forEach((t, i) => {
+        const b = curve === "overflow" ? t.overflowRiskBounds?.(k) : t.flushedEnergyBounds?.(k);
+        if (b === undefined) return;
+        lows[i] = b[0];
+        highs[i] = b[1];
+      });
+      table.lows = lows;
+      table.highs = highs;
+    }
+    return table as Table & { lows: Float64Array; highs: Float64Array };
+  }
+
+  private value(curve: Curve, k: number, i: number, table = this.table(curve, k)): number {
+    if (((table.flags[i] as number) & HAS_VALUE) !== 0) return table.values[i] as number;
+    const t = this.tensors[i] as ScaledTensorCurves;
+    const v = curve === "overflow" ? t.overflowRisk(k) : t.flushedEnergy(k);
+    table.values[i] = v;
+    table.flags[i] = (table.flags[i] as number) | HAS_VALUE;
+    return v;
+  }
+
+  // A tighter upper bound where the curve offers one (the value once known), else undefined.
+  private upper(curve: Curve, k: number, i: number, table = this.table(curve, k)): number | undefined {
+    const flags = table.flags[i] as number;
+    if ((flags & HAS_VALUE) !== 0) return table.values[i] as number;
+    if ((flags & HAS_UPPER) !== 0) return (table.uppers as Float64Array)[i] as number;
+    const t = this.tensors[i] as ScaledTensorCurves;
+    const u = curve === "overflow" ? t.overflowRiskUpper?.(k) : t.flushedEnergyUpper?.(k);
+    if (u === undefined) return undefined;
+    table.uppers ??= new Float64Array(this.n);
+    table.uppers[i] = u;
+    table.flags[i] = flags | HAS_UPPER;
+    return u;
+  }
+
+  // Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
+  // not, tensors are taken in priority order (those likeliest to overflow first): each one's upper bound is tightened
+  // where the curve offers a tighter one, and it is integrated if that bound could still break the budget alone;
+  // then the rest, largest upper bound first, until the exact part plus the remaining bounds decides: the same
+  // answer as summing every integral, for a fraction of the integrals.
+  private riskWithin(k: number, active: Uint8Array): boolean {
+    const budget = this.o.riskBudget;
+    const n = this.n;
+    if (!this.allBounded) {
+      // union bound over tensors: P(any overflows) ≤ Σ P(tensor overflows) (common practice)
+      let sum = 0;
+      for (let i = 0; i < n; i++) if (active[i] === 1) sum += this.value("overflow", k, i);
+      return Math.min(1, sum) <= budget;
+    }
+    const table = this.bounds("overflow", k);
+    const lows = new Float64Array(n);
+    const highs = new Float64Array(n);
+    // 0: the cheap bounds, 1: the upper bound tightened, 2: exact, 3: set aside
+    const state = new Uint8Array(n);
+    let low = 0;
+    let high = 0;
+    for (let i = 0; i < n; i++) {
+      if (active[i] === 0) {
+        state[i] = 3;
+        continue;
+      }
+      const known = ((table.flags[i] as number) & HAS_VALUE) !== 0;
+      const a = known ? (table.values[i] as number) : (table.lows[i] as number);
+      const b = known ? (table.values[i] as number) : (table.highs[i] as number);
+      lows[i] = a;
+      highs[i] = b;
+      if (a === b) state[i] = 2;
+      low += a;
+      high += b;
+      // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
+      if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+    }
+    // The sums are updated as bounds change; a decision they suggest is confirmed by summing afresh (the updates
+    // cancel, and their rounding adds up), widened for the rounding of a sum.
+    const decided = (): boolean | undefined => {
+      if (!(high * (1 + 1e-12) <= budget) && !(Math.min(1, low * (1 - 1e-12)) > budget)) return undefined;
+      low = 0;
+      high = 0;
+      for (let i = 0; i < n; i++) {
+        if (state[i] === 3) continue;
+        low += lows[i] as number;
+        high += highs[i] as number;
+      }
+      if (high * (1 + 1e-12) <= budget) return true;
+      if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
+      return undefined;
+    };
+    const integrate = (i: number): boolean | undefined => {
+      const exact = this.value("overflow", k, i, table);
+      low += exact - (lows[i] as number);
+      high += exact - (highs[i] as number);
+      lows[i] = exact;
+      highs[i] = exact;
+      state[i] = 2;
+      return decided();
+    };
+    let answer = decided();
+    if (answer !== undefined) return answer;
+    // a tensor whose tightened bound could not break the budget alone is left for the second pass
+    for (const i of this.overflowOrder) {
+      if ((state[i] as number) >= 2) continue;
+      if (state[i] === 0) {
+        state[i] = 1;
+        const tighter = this.upper("overflow", k, i, table);
+        if (tighter !== undefined) {
+          const upper = Math.max(lows[i] as number, tighter);
+          if (upper < (highs[i] as number)) {
+            high += upper - (highs[i] as number);
+            highs[i] = upper;
+            answer = decided();
+            if (answer !== undefined) return answer;
+          }
+          if (upper <= budget) continue;
+        }
+      }
+      answer = integrate(i);
+      if (answer !== undefined) return answer;
+    }
+    const rest = this.overflowOrder.filter((i) => state[i] === 1).sort((a, b) => (highs[b] as number) - (highs[a] as number) || a - b);
+    for (const i of rest) {
+      answer = integrate(i);
+      if (answer !== undefined) return answer;
+    }
+    let sum = 0;
+    for (let i = 0; i < n; i++) if (active[i] === 1) sum += this.value("overflow", k, i, table);
+    return Math.min(1, sum) <= budget;
+  }
+
+  // The active tensor with the largest value at k (the first such in the tensors' order; the first tensor when no
+  // value is above 0). A tensor whose upper bound is below a value already found, or below another's lower bound,
+  // cannot be the largest: only the others are integrated, in priority order so that a large value is found early.
+  private worst(curve: Curve, k: number, active: Uint8Array): { id: string | null; value: number } {
+    const table = this.bounds(curve, k);
+    const n = this.n;
+    const highs = new Float64Array(n);
+    let floor = -Infinity;
+    for (let i = 0; i < n; i++) {
+      if (active[i] === 0) continue;
+      const known = ((table.flags[i] as number) & HAS_VALUE) !== 0;
+      highs[i] = known ? (table.values[i] as number) : (table.highs[i] as number);
+      const low = known ? (table.values[i] as number) : (table.lows[i] as number);
+      if (low > floor) floor = low;
+    }
+    const visited = new Uint8Array(n);
+    for (const i of curve === "overflow" ? this.overflowOrder : this.flushOrder) {
+      if (active[i] === 0 || (highs[i] as number) < floor) continue;
+      const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
+      if (u !== undefined && u < floor) continue;
+      const v = this.value(curve, k, i, table);
+      visited[i] = 1;
+      if (v > floor) floor = v;
+    }
+    let id: string | null = null;
+    let best = -Infinity;
+    for (let i = 0; i < n; i++) {
+      if (visited[i] === 0) continue;
+      const v = table.values[i] as number;
+      if (v > best || id === null) {
+        best = Math.max(best, v);
+        id = (this.tensors[i] as ScaledTensorCurves).id;
+      }
+    }
+    return { id, value: best };
+  }
+
+  // Whether one tensor's flushed share at k is within the tolerance, deciding by its bounds where they can.
+  private tolerated(k: number, i: number): boolean {
+    const table = this.table("flush", k);
+    const flags = table.flags[i] as number;
+    if ((flags & TOLERANCE_KNOWN) !== 0) return (flags & TOLERATED) !== 0;
+    const tolerance = this.o.flushTolerance;
+    const t = this.tensors[i] as ScaledTensorCurves;
+    let ok: boolean | undefined;
+    const bounds = (flags & HAS_VALUE) !== 0 ? undefined : t.flushedEnergyBounds?.(k);
+    if (bounds !== undefined && bounds[1] <= tolerance) ok = true;
+    else if (bounds !== undefined && bounds[0] > tolerance) ok = false;
+    else {
+      const upper = this.upper("flush", k, i, table);
+      ok = upper !== undefined && upper <= tolerance ? true : this.value("flush", k, i, table) <= tolerance;
+    }
+    table.flags[i] = (table.flags[i] as number) | TOLERANCE_KNOWN | (ok ? TOLERATED : 0);
+    return ok;
+  }
+
+  // The smallest k in [lo, hi] at which every active tensor's flushing is tolerated (null if none): each tensor's
+  // share falls as k grows, so this is the largest of the tensors' own edges. The tensors are visited in priority
+  // order (highest guessed edge first); one that is tolerated at the edge found so far cannot raise it (one test,
+  // mostly by its bounds), one that is not raises it to its own edge (a gallop from its guess).
+  private flushEdge(active: Uint8Array): number | null {
+    const { lowestLog2: lo, highestLog2: hi } = this.o;
+    let edge = lo;
+    for (const i of this.flushOrder) {
+      if (active[i] === 0 || this.tolerated(edge, i)) continue;
+      if (edge === hi) return null;
+      const guess = (this.tensors[i] as ScaledTensorCurves).edgeGuessesLog2?.flush ?? edge + 1;
+      const own = firstTrue(edge + 1, hi, (k) => this.tolerated(k, i), guess);
+      if (own === null) return null;
+      edge = own;
+    }
+    return edge;
+  }
 }
 
 // Tensor indices by a key, smallest first (stable): the order in which the searches integrate.
 function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
   const keys = tensors.map(key);
   return Array.from(tensors.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
-}
-
-// Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
-// not, tensors are taken in priority order (those likeliest to overflow first): each one's upper bound is tightened
-// where the curve offers a tighter one, and it is integrated if that bound could still break the budget alone; then
-// the rest, largest upper bound first, until the exact part plus the remaining bounds decides: the same answer as
-// summing every integral, for a fraction of the integrals.
-function riskWithin(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number, budget: number): boolean {
-  if (!tensors.every((t) => t.overflowRiskBounds !== undefined)) return totalRisk(tensors, k) <= budget;
-  const n = tensors.length;
-  const lows = new Float64Array(n);
-  const highs = new Float64Array(n);
-  // 0: the cheap bounds, 1: the upper bound tightened, 2: exact
-  const state = new Uint8Array(n);
-  let low = 0;
-  let high = 0;
-  for (let i = 0; i < n; i++) {
-    const [a, b] = (tensors[i] as ScaledTensorCurves).overflowRiskBounds!(k);
-    lows[i] = a;
-    highs[i] = b;
-    if (a === b) state[i] = 2;
-    low += a;
-    high += b;
-    // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
-    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
-  }
-  // The sums are updated as bounds change; a decision they suggest is confirmed by summing afresh (the updates
-  // cancel, and their rounding adds up), widened for the rounding of a sum.
-  const decided = (): boolean | undefined => {
-    if (!(high * (1 + 1e-12) <= budget) && !(Math.min(1, low * (1 - 1e-12)) > budget)) return undefined;
-    low = 0;
-    high = 0;
-    for (let i = 0; i < n; i++) {
-      low += lows[i] as number;
-      high += highs[i] as number;
-    }
-    if (high * (1 + 1e-12) <= budget) return true;
-    if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
-    return undefined;
-  };
-  const integrate = (i: number): boolean | undefined => {
-    const exact = (tensors[i] as ScaledTensorCurves).overflowRisk(k);
-    low += exact - (lows[i] as number);
-    high += exact - (highs[i] as number);
-    lows[i] = exact;
-    highs[i] = exact;
-    state[i] = 2;
-    return decided();
-  };
-  let answer = decided();
-  if (answer !== undefined) return answer;
-  // a tensor whose tightened bound could not break the budget alone is left for the second pass
-  for (const i of order) {
-    if (state[i] === 2) continue;
-    const t = tensors[i] as ScaledTensorCurves;
-    if (state[i] === 0 && t.overflowRiskUpper) {
-      state[i] = 1;
-      const upper = Math.max(lows[i] as number, t.overflowRiskUpper(k));
-      if (upper < (highs[i] as number)) {
-        high += upper - (highs[i] as number);
-        highs[i] = upper;
-        answer = decided();
-        if (answer !== undefined) return answer;
-      }
-      if (upper <= budget) continue;
-    }
-    answer = integrate(i);
-    if (answer !== undefined) return answer;
-  }
-  const rest = order.filter((i) => state[i] !== 2).sort((a, b) => (highs[b] as number) - (highs[a] as number) || a - b);
-  for (const i of rest) {
-    answer = integrate(i);
-    if (answer !== undefined) return answer;
-  }
-  return totalRisk(tensors, k) <= budget;
-}
-
-// The tensor with the largest overflow risk at k (the first such, in the given order of tensors). A tensor whose
-// upper bound is below a value already found, or below another's lower bound, cannot be the largest: only the
-// others are integrated, in priority order so that a large value is found early.
-function worstRisk(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): string | null {
-  return worst(tensors, order, (t) => t.overflowRisk(k), (t) => t.overflowRiskBounds?.(k), (t) => t.overflowRiskUpper?.(k)).id;
-}
-
-function worst(
-  tensors: readonly ScaledTensorCurves[],
-  order: readonly number[],
-  value: (t: ScaledTensorCurves) => number,
-  bounds: (t: ScaledTensorCurves) => readonly [number, number] | undefined,
-  upper: (t: ScaledTensorCurves) => number | undefined,
-): { id: string | null; value: number } {
-  const highs = new Float64Array(tensors.length).fill(Infinity);
-  let floor = -Infinity;
-  tensors.forEach((t, i) => {
-    const b = bounds(t);
-    if (b === undefined) return;
-    highs[i] = b[1];
-    if (b[0] > floor) floor = b[0];
-  });
-  const values = new Float64Array(tensors.length);
-  const known = new Uint8Array(tensors.length);
-  for (const i of order) {
-    if ((highs[i] as number) < floor) continue;
-    const t = tensors[i] as ScaledTensorCurves;
-    const u = (highs[i] as number) > floor ? upper(t) : undefined;
-    if (u !== undefined && u < floor) continue;
-    const v = value(t);
-    values[i] = v;
-    known[i] = 1;
-    if (v > floor) floor = v;
-  }
-  let id: string | null = null;
-  let best = -Infinity;
-  for (let i = 0; i < tensors.length; i++) {
-    if (known[i] === 0) continue;
-    const v = values[i] as number;
-    if (v > best || id === null) {
-      best = Math.max(best, v);
-      id = (tensors[i] as ScaledTensorCurves).id;
-    }
-  }
-  return { id, value: best };
-}
-
-// Whether one tensor's flushed share at k is within the tolerance, deciding by its bounds where they can.
-function flushOkAt(t: ScaledTensorCurves, k: number, tolerance: number): boolean {
-  if (t.flushedEnergyBounds) {
-    const [low, high] = t.flushedEnergyBounds(k);
-    if (high <= tolerance) return true;
-    if (low > tolerance) return false;
-  }
-  const upper = t.flushedEnergyUpper?.(k);
-  if (upper !== undefined && upper <= tolerance) return true;
-  return t.flushedEnergy(k) <= tolerance;
-}
-
-// The smallest k in [lo, hi] at which every tensor's flushing is tolerated (null if none): each tensor's share
-// falls as k grows, so this is the largest of the tensors' own edges. The tensors are visited in priority order
-// (highest guessed edge first); one that is tolerated at the edge found so far cannot raise it (one test, mostly
-// by its bounds), one that is not raises it to its own edge (a gallop from its guess).
-function flushEdge(tensors: readonly ScaledTensorCurves[], order: readonly number[], lo: number, hi: number, tolerance: number): number | null {
-  let edge = lo;
-  for (const i of order) {
-    const t = tensors[i] as ScaledTensorCurves;
-    if (flushOkAt(t, edge, tolerance)) continue;
-    if (edge === hi) return null;
-    const own = firstTrue(edge + 1, hi, (k) => flushOkAt(t, k, tolerance), t.edgeGuessesLog2?.flush ?? edge + 1);
-    if (own === null) return null;
-    edge = own;
-  }
-  return edge;
-}
-
-// The tensor with the largest flushed share at k (the first such; the first tensor when every share is 0).
-function worstFlush(tensors: readonly ScaledTensorCurves[], order: readonly number[], k: number): { id: string | null; share: number } {
-  const { id, value } = worst(tensors, order, (t) => t.flushedEnergy(k), (t) => t.flushedEnergyBounds?.(k), (t) => t.flushedEnergyUpper?.(k));
-  return { id, share: Math.max(0, value) };
 }
 
 /**

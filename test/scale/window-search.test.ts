@@ -3,7 +3,7 @@
 // reference below is that definition, written out directly; the curves are random monotone ones with valid bounds.
 import * as fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { lossScaleWindow, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
+import { lossScaleWindow, lossScaleWindows, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
 
 const LOW = -12;
 const HIGH = 12;
@@ -85,6 +85,28 @@ describe("lossScaleWindow searches", () => {
         expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
       }),
       { numRuns: 400 },
+    );
+  });
+
+  it("give each subset's window of the definition when one search serves a set and its subsets", () => {
+    fc.assert(
+      fc.property(fc.array(shape, { minLength: 1, maxLength: 10 }), fc.array(fc.array(fc.nat(12), { maxLength: 4 }), { maxLength: 4 }), (shapes, asides) => {
+        const tensors = curves(shapes);
+        const windowOf = lossScaleWindows(tensors, OPTIONS);
+        // the whole set first (as the loss-scale answer asks), then subsets, each search reusing the earlier ones
+        const whole = windowOf();
+        expect(whole).toEqual(lossScaleWindow(tensors, OPTIONS));
+        for (const aside of asides) {
+          const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+          const rest = tensors.filter((t) => !ids.has(t.id));
+          const w = windowOf(ids);
+          if (rest.length === 0) continue;
+          const d = directWindow(rest, OPTIONS);
+          expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+          expect(w).toEqual(lossScaleWindow(rest, OPTIONS));
+        }
+      }),
+      { numRuns: 300 },
     );
   });
 
