@@ -191,6 +191,8 @@ function updateEntry(update: MagnitudeProfile): UpdateEntry {
 export class SwampingSums {
   // for each format, the first of the list with its precision and range: equal formats share one sum
   private readonly first: number[];
+  // the lists already given, by update and weight: the same pair meets every format of this assessment at once
+  private readonly given = new Map<UpdateEntry, Map<WeightEntry, readonly number[]>>();
 
   constructor(private readonly formats: readonly SwampingFormat[]) {
     this.first = formats.map((format) => formats.findIndex((f) => f.precision === format.precision && f.emin === format.emin));
@@ -200,6 +202,13 @@ export class SwampingSums {
   lost(weight: MagnitudeProfile, update: MagnitudeProfile): readonly number[] {
     const w = weightEntry(weight);
     const u = updateEntry(update);
+    let byWeight = this.given.get(u);
+    if (byWeight === undefined) {
+      byWeight = new Map();
+      this.given.set(u, byWeight);
+    }
+    const given = byWeight.get(w);
+    if (given !== undefined) return given;
     let known = u.sums.get(w);
     if (known === undefined) {
       known = [];
@@ -226,6 +235,7 @@ export class SwampingSums {
       }
       lost.push(value);
     }
+    byWeight.set(w, lost);
     return lost;
   }
 }
