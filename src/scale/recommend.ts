@@ -117,7 +117,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
  * values computed with fewer integrals: a curve's value is the worse of the start and end profiles' (as the curves
  * take it), and when one profile's segment bound lies below the other's value the other is not integrated. Values
  * equal the curves' own (test/scale/recommend-bounds.test.ts); the window's searches then integrate only the tensors
- * that come near the budget or the tolerance.
+ * that come near the budget or the tolerance. Values are not memoised here: the window's search keeps them.
  */
 export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
   const byId = new Map(tensors.map((t) => [t.id, t] as const));
@@ -126,35 +126,35 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
     const same = sameDistribution(tensor.start, tensor.end);
     const start = riskProfile(tensor.start);
     const end = same ? start : riskProfile(tensor.end);
-    // per exponent: the value once known, and each profile's segment upper bound
-    const overflows = new Map<number, number>();
-    const flushes = new Map<number, number>();
-    const overflowUppers = new Map<number, readonly [number, number]>();
-    const flushUppers = new Map<number, readonly [number, number]>();
+    // each profile's segment upper bound at the exponent last asked (the window asks for a tensor's bound and then
+    // its value at one exponent; it keeps both itself, src/scale/window.ts)
+    let overflowK = NaN;
+    let overflowPair: readonly [number, number] = [1, 1];
+    let flushK = NaN;
+    let flushPair: readonly [number, number] = [1, 1];
     const overflowUpper = (k: number): readonly [number, number] => {
-      let uppers = overflowUppers.get(k);
-      if (uppers === undefined) {
+      if (k !== overflowK) {
         const level = limits.overflowLevel * 2 ** -k;
         const a = probabilityAnyAboveUpper(start, level);
-        uppers = [a, same ? a : probabilityAnyAboveUpper(end, level)];
-        overflowUppers.set(k, uppers);
+        overflowPair = [a, same ? a : probabilityAnyAboveUpper(end, level)];
+        overflowK = k;
       }
-      return uppers;
+      return overflowPair;
     };
     const flushUpper = (k: number): readonly [number, number] => {
-      let uppers = flushUppers.get(k);
-      if (uppers === undefined) {
+      if (k !== flushK) {
         const bound = limits.flushBound * 2 ** -k;
         const a = energyBelowUpper(start, bound);
-        uppers = [a, same ? a : energyBelowUpper(end, bound)];
-        flushUppers.set(k, uppers);
+        flushPair = [a, same ? a : energyBelowUpper(end, bound)];
+        flushK = k;
       }
-      return uppers;
+      return flushPair;
     };
     // the worse of f(start) and f(end), as the curves take it, skipping the profile whose upper bound is below the
     // other's value (the larger of two values is the one the other cannot reach)
-    const worse = (f: (p: MagnitudeProfile) => number, uppers: readonly [number, number]): number => {
+    const worse = (f: (p: MagnitudeProfile) => number, bounds: (k: number) => readonly [number, number], k: number): number => {
       if (same) return f(start);
+      const uppers = bounds(k);
       const [first, second, secondUpper] = uppers[0] >= uppers[1] ? [start, end, uppers[1]] : [end, start, uppers[0]];
       const a = f(first);
       if (secondUpper <= a) return a;
@@ -164,40 +164,20 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
       id: c.id,
       edgeGuessesLog2: c.edgeGuessesLog2,
       overflowRisk(k) {
-        let value = overflows.get(k);
-        if (value === undefined) {
-          const level = limits.overflowLevel * 2 ** -k;
-          value = worse((p) => probabilityAnyAbove(p, level), overflowUpper(k));
-          overflows.set(k, value);
-        }
-        return value;
+        const level = limits.overflowLevel * 2 ** -k;
+        return worse((p) => probabilityAnyAbove(p, level), overflowUpper, k);
       },
       flushedEnergy(k) {
-        let value = flushes.get(k);
-        if (value === undefined) {
-          const bound = limits.flushBound * 2 ** -k;
-          value = worse((p) => energyBelow(p, bound), flushUpper(k));
-          flushes.set(k, value);
-        }
-        return value;
+        const bound = limits.flushBound * 2 ** -k;
+        return worse((p) => energyBelow(p, bound), flushUpper, k);
       },
-      overflowRiskBounds(k) {
-        const value = overflows.get(k);
-        return value === undefined ? c.overflowRiskBounds(k) : [value, value];
-      },
-      flushedEnergyBounds(k) {
-        const value = flushes.get(k);
-        return value === undefined ? c.flushedEnergyBounds(k) : [value, value];
-      },
+      overflowRiskBounds: (k) => c.overflowRiskBounds(k),
+      flushedEnergyBounds: (k) => c.flushedEnergyBounds(k),
       overflowRiskUpper(k) {
-        const value = overflows.get(k);
-        if (value !== undefined) return value;
         const [a, b] = overflowUpper(k);
         return Math.max(a, b);
       },
       flushedEnergyUpper(k) {
-        const value = flushes.get(k);
-        if (value !== undefined) return value;
         const [a, b] = flushUpper(k);
         return Math.max(a, b);
       },
