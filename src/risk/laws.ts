@@ -364,13 +364,18 @@ function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, pos
   return NaN;
 }
 
+// the integrand kind of a measure named in lawOverDraws and lawOverDrawsBounds
+function measureKind(measure: "any-above" | "below" | "energy-below"): number {
+  return measure === "any-above" ? ANY_ABOVE : measure === "below" ? BELOW : ENERGY_BELOW;
+}
+
 /**
  * {@link overDraws} of a profile's element law at threshold t, without a closure: `anyOf(share·above(r, t), n)`
  * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
  * Equal, bit for bit, to overDraws with those closures.
  */
 export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
-  const kind = measure === "any-above" ? ANY_ABOVE : measure === "below" ? BELOW : ENERGY_BELOW;
+  const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, positiveOnly);
   if (!Number.isNaN(decided)) return decided;
   return drawSum(profile.rms, profile.log2Spread);
@@ -396,10 +401,7 @@ export function ruleOverDraws(rms: number, log2Spread: number, f: (r: number) =>
   integrandKind = CLOSURE;
   integrandClosure = f;
   if (!(log2Spread > 0)) return integrand(rms);
-  drawRms = rms;
-  drawSpread = log2Spread;
-  drawFactors = nodeFactors(log2Spread);
-  drawStamp++;
+  beginDraw(rms, log2Spread);
   const low = nodeValue(0);
   const high = nodeValue(VALUES.length - 1);
   if (low === high) return Math.min(1, Math.max(0, low));
@@ -410,10 +412,7 @@ export function ruleOverDraws(rms: number, log2Spread: number, f: (r: number) =>
 // HALF_STRIDE), or for a step-like integrand the monotone sum below, within MONOTONE_TOLERANCE of the Simpson sum.
 function drawSum(rms: number, log2Spread: number): number {
   if (!(log2Spread > 0)) return integrand(rms);
-  drawRms = rms;
-  drawSpread = log2Spread;
-  drawFactors = nodeFactors(log2Spread);
-  drawStamp++;
+  beginDraw(rms, log2Spread);
   const last = VALUES.length - 1;
   // every f here is monotone in r, so equal values at the two extreme draws mean a constant integrand
   // (an overflow far out of reach, a share that is 0 or 1 for every draw): one evaluation pair instead of all
@@ -433,6 +432,13 @@ let drawSpread = 0;
 let drawFactors: Float64Array = VALUES;
 let drawStamp = 0;
 const KNOWN = new Float64Array(VALUES.length);
+// a new draw: the node values held in VALUES are stale from here on
+function beginDraw(rms: number, log2Spread: number): void {
+  drawRms = rms;
+  drawSpread = log2Spread;
+  drawFactors = nodeFactors(log2Spread);
+  drawStamp++;
+}
 function nodeValue(i: number): number {
   if (KNOWN[i] === drawStamp) return VALUES[i] as number;
   const value = integrand(drawRms * factorAt(drawFactors, i, drawSpread));
@@ -671,7 +677,7 @@ export function lawOverDrawsBounds(
   t: number,
   inner: boolean,
 ): [number, number] {
-  const kind = measure === "any-above" ? ANY_ABOVE : measure === "below" ? BELOW : ENERGY_BELOW;
+  const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, false);
   if (!Number.isNaN(decided)) return [decided, decided];
   return drawBounds(profile.rms, profile.log2Spread, inner);
