@@ -128,28 +128,21 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
     const end = same ? start : riskProfile(tensor.end);
     // each profile's segment upper bound at the exponent last asked (the window asks for a tensor's bound and then
     // its value at one exponent; it keeps both itself, src/scale/window.ts)
-    let overflowK = NaN;
-    let overflowPair: readonly [number, number] = [1, 1];
-    let flushK = NaN;
-    let flushPair: readonly [number, number] = [1, 1];
-    const overflowUpper = (k: number): readonly [number, number] => {
-      if (k !== overflowK) {
-        const level = limits.overflowLevel * 2 ** -k;
-        const a = probabilityAnyAboveUpper(start, level);
-        overflowPair = [a, same ? a : probabilityAnyAboveUpper(end, level)];
-        overflowK = k;
-      }
-      return overflowPair;
+    const lastUppers = (upper: (p: MagnitudeProfile, t: number) => number, level: number) => {
+      let lastK = NaN;
+      let pair: readonly [number, number] = [1, 1];
+      return (k: number): readonly [number, number] => {
+        if (k !== lastK) {
+          const t = level * 2 ** -k;
+          const a = upper(start, t);
+          pair = [a, same ? a : upper(end, t)];
+          lastK = k;
+        }
+        return pair;
+      };
     };
-    const flushUpper = (k: number): readonly [number, number] => {
-      if (k !== flushK) {
-        const bound = limits.flushBound * 2 ** -k;
-        const a = energyBelowUpper(start, bound);
-        flushPair = [a, same ? a : energyBelowUpper(end, bound)];
-        flushK = k;
-      }
-      return flushPair;
-    };
+    const overflowUpper = lastUppers(probabilityAnyAboveUpper, limits.overflowLevel);
+    const flushUpper = lastUppers(energyBelowUpper, limits.flushBound);
     // the worse of f(start) and f(end), as the curves take it, skipping the profile whose upper bound is below the
     // other's value (the larger of two values is the one the other cannot reach)
     const worse = (f: (p: MagnitudeProfile) => number, bounds: (k: number) => readonly [number, number], k: number): number => {
