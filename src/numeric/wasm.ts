@@ -133,7 +133,7 @@ export interface WasmFunction {
 }
 
 /** A module importing env.memory and exporting `functions` by name (each with its own type, §5.5). */
-export function assembleModule(functions: readonly WasmFunction[]): Uint8Array {
+function assembleModule(functions: readonly WasmFunction[]): Uint8Array {
   const types = functions.map((f) => [0x60, ...vector(f.params.map((t) => [t])), ...vector(f.results.map((t) => [t]))]);
   const bodies = functions.map((f) => {
     const body = [...vector(f.locals.map(([count, type]) => [...unsignedLeb(count), type])), ...f.code, ...op.end];
