@@ -62,7 +62,31 @@ export const INIT_SHORTHANDS = [
 ] as const;
 
 /** The activation layer types (the bare ones and leaky-relu). */
-export const ACTIVATION_TYPES = ["relu", "leaky-relu", "gelu", "silu", "tanh", "sigmoid", "softplus", "identity", "softmax"] as const;
+export const ACTIVATION_TYPES = ACTIVATIONS;
+
+/** Largest `horizon.steps` accepted. */
+export const MAX_STEPS = 1e12;
+
+/** Variance rules of a fan-based initialisation. */
+export const FAN_RULES = ["he", "glorot", "xavier", "lecun"] as const;
+/** Distributions of a fan-based initialisation. */
+export const DISTRIBUTIONS = ["normal", "uniform"] as const;
+/** Named conv2d paddings. */
+export const PADDINGS = ["same", "valid"] as const;
+/** Where attention applies 1/sqrt(head-width). */
+export const ATTENTION_SCALINGS = ["query", "logits", "none"] as const;
+/** How a loss combines per-sample losses. */
+export const REDUCTIONS = ["mean", "sum"] as const;
+/** Optimizer kinds. */
+export const OPTIMIZER_KINDS = ["sgd", "momentum", "adam", "adamw"] as const;
+/** How gradients are combined across workers. */
+export const WORKER_GRADIENTS = ["sum", "average"] as const;
+/** What 8-bit conversions do on overflow. */
+export const OVERFLOW_MODES = ["saturate", "infinity-or-nan"] as const;
+/** Scale factors for 8-bit formats. */
+export const PLAN_SCALINGS = ["none", "tensor", "block"] as const;
+/** Default epsilon of each normalization layer type. */
+export const NORM_EPSILONS = { "layer-norm": 1e-5, "rms-norm": 1e-6, "batch-norm": 1e-5 } as const;
 
 const INPUT_KINDS = [["features", "positions"], ["tokens"], ["channels", "height", "width"]] as const;
 

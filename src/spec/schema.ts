@@ -7,7 +7,27 @@
 import { createRequire } from "node:module";
 import type * as Zod from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
-import { ACTIVATION_TYPES, BARE_LAYER_TYPES, FINAL_MESSAGE, INIT_SHORTHANDS, inputKindCount, MAX_EXPANDED_LAYERS, MAX_SIZE, NAME_PATTERN } from "./limits.js";
+import {
+  ACTIVATION_TYPES,
+  ATTENTION_SCALINGS,
+  BARE_LAYER_TYPES,
+  DISTRIBUTIONS,
+  FAN_RULES,
+  FINAL_MESSAGE,
+  INIT_SHORTHANDS,
+  inputKindCount,
+  MAX_EXPANDED_LAYERS,
+  MAX_SIZE,
+  MAX_STEPS,
+  NAME_PATTERN,
+  NORM_EPSILONS,
+  OPTIMIZER_KINDS,
+  OVERFLOW_MODES,
+  PADDINGS,
+  PLAN_SCALINGS,
+  REDUCTIONS,
+  WORKER_GRADIENTS,
+} from "./limits.js";
 
 export {
   ACTIVATION_TYPES,
@@ -57,12 +77,12 @@ function buildSchemas(z: typeof Zod) {
     z
       .strictObject({
         kind: z
-          .enum(["he", "glorot", "xavier", "lecun"])
+          .enum(FAN_RULES)
           .describe(
             "Variance rule: he 2/fan-in (He et al. 2015), glorot (also xavier) 2/(fan-in + fan-out) " +
               "(Glorot & Bengio 2010), lecun 1/fan-in",
           ),
-        distribution: z.enum(["normal", "uniform"]).describe("Normal or uniform draws (default normal)").default("normal"),
+        distribution: z.enum(DISTRIBUTIONS).describe("Normal or uniform draws (default normal)").default("normal"),
         gain,
       })
       .describe("A fan-based initialisation"),
@@ -125,7 +145,7 @@ function buildSchemas(z: typeof Zod) {
       kernel: size("Kernel height and width (square)"),
       stride: size("Stride in both directions (default 1)").default(1),
       padding: z
-        .union([z.enum(["same", "valid"]), z.int().min(0).max(MAX_SIZE)])
+        .union([z.enum(PADDINGS), z.int().min(0).max(MAX_SIZE)])
         .describe("'same' keeps the image size at stride 1, 'valid' pads nothing, a number pads that many pixels each side (default same)")
         .default("same"),
       bias: z.boolean().describe("Whether the layer adds a bias (default true)").default(true),
@@ -208,7 +228,7 @@ function buildSchemas(z: typeof Zod) {
       "head-width": size("Width of each head; heads × head-width is normally the model width"),
       causal: z.boolean().describe("Whether each position sees only earlier positions (default false)").default(false),
       scaling: z
-        .enum(["query", "logits", "none"])
+        .enum(ATTENTION_SCALINGS)
         .describe("Where 1/sqrt(head-width) is applied: to the query before q·k, to the logits after it, or nowhere (default logits)")
         .default("logits"),
       "subtract-max": z
@@ -271,9 +291,9 @@ function buildSchemas(z: typeof Zod) {
     conv2d,
     embedding,
     ...(activationObjects as [(typeof activationObjects)[number], ...(typeof activationObjects)[number][]]),
-    norm("layer-norm", "Layer normalization over the features of each position", 1e-5),
-    norm("rms-norm", "Root-mean-square normalization over the features of each position", 1e-6),
-    norm("batch-norm", "Batch normalization in training mode (statistics of the current batch)", 1e-5),
+    norm("layer-norm", "Layer normalization over the features of each position", NORM_EPSILONS["layer-norm"]),
+    norm("rms-norm", "Root-mean-square normalization over the features of each position", NORM_EPSILONS["rms-norm"]),
+    norm("batch-norm", "Batch normalization in training mode (statistics of the current batch)", NORM_EPSILONS["batch-norm"]),
     dropout,
     pool("average-pool", "Average pooling over square windows"),
     pool("max-pool", "Max pooling over square windows"),
@@ -346,13 +366,13 @@ function buildSchemas(z: typeof Zod) {
         .strictObject({
           kind: z.literal("cross-entropy").describe("Softmax cross-entropy"),
           classes: z.int().min(2).max(MAX_SIZE).describe("Number of classes; the last layer's width"),
-          reduction: z.enum(["mean", "sum"]).describe("How per-sample losses are combined (default mean)").default("mean"),
+          reduction: z.enum(REDUCTIONS).describe("How per-sample losses are combined (default mean)").default("mean"),
         })
         .describe("Softmax cross-entropy over a number of classes"),
       z
         .strictObject({
           kind: z.literal("mean-squared-error").describe("Mean squared error"),
-          reduction: z.enum(["mean", "sum"]).describe("How per-element losses are combined (default mean)").default("mean"),
+          reduction: z.enum(REDUCTIONS).describe("How per-element losses are combined (default mean)").default("mean"),
           "target-scale": positive("Root-mean-square of a target value (default 1)").default(1),
         })
         .describe("Squared error against real-valued targets"),
@@ -373,7 +393,7 @@ function buildSchemas(z: typeof Zod) {
 
   const optimizer = z
     .strictObject({
-      kind: z.enum(["sgd", "momentum", "adam", "adamw"]).describe("sgd, momentum (SGD with momentum), adam or adamw"),
+      kind: z.enum(OPTIMIZER_KINDS).describe("sgd, momentum (SGD with momentum), adam or adamw"),
       "learning-rate": learningRate.optional(),
       "warmup-steps": count("Steps of linear warm-up to the peak (default 0)").default(0),
       momentum: fraction("Momentum coefficient, for kind momentum only (default 0.9)").optional(),
@@ -389,7 +409,7 @@ function buildSchemas(z: typeof Zod) {
 
   const horizon = z
     .strictObject({
-      steps: z.int().min(1).max(1e12).describe("Training steps until the end"),
+      steps: z.int().min(1).max(MAX_STEPS).describe("Training steps until the end"),
       "final-loss": nonNegative("Expected loss at the end; gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
       "weight-growth": positive("How much the weights' rms grows by the end (default 1: not at all)").default(1),
     })
@@ -401,7 +421,7 @@ function buildSchemas(z: typeof Zod) {
       loss,
       workers: size("Data-parallel workers (default 1)").default(1),
       "worker-gradients": z
-        .enum(["sum", "average"])
+        .enum(WORKER_GRADIENTS)
         .describe("Whether gradients are summed or averaged across workers (default average)")
         .default("average"),
       "accumulation-steps": size("Micro-batches whose gradients are accumulated before each update (default 1)").default(1),
@@ -425,7 +445,7 @@ function buildSchemas(z: typeof Zod) {
     accumulate: format("Accumulate format of matrix products and reductions (default binary32)").optional(),
     "loss-scale": positive("A static loss scale to evaluate, a power of two (absent: headroom recommends one)").optional(),
     overflow: z
-      .enum(["saturate", "infinity-or-nan"])
+      .enum(OVERFLOW_MODES)
       .describe("What 8-bit conversions do on overflow: clamp to the largest finite value, or give infinity/NaN (default saturate)")
       .default("saturate"),
     "flush-subnormals": z
@@ -433,7 +453,7 @@ function buildSchemas(z: typeof Zod) {
       .describe("Whether results below the smallest normal become zero (default false)")
       .default(false),
     scaling: z
-      .enum(["none", "tensor", "block"])
+      .enum(PLAN_SCALINGS)
       .describe("Scale factors for 8-bit formats: per tensor, per block of 32 elements, or none (default tensor when an 8-bit format is used)")
       .optional(),
   };

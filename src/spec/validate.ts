@@ -8,7 +8,25 @@
  * generated valid and invalid specs.
  */
 import { FORMAT_NAMES } from "../formats/names.js";
-import { ACTIVATION_TYPES, BARE_LAYER_TYPES, INIT_SHORTHANDS, MAX_EXPANDED_LAYERS, MAX_SIZE, NAME_PATTERN } from "./limits.js";
+import {
+  ACTIVATION_TYPES,
+  ATTENTION_SCALINGS,
+  BARE_LAYER_TYPES,
+  DISTRIBUTIONS,
+  FAN_RULES,
+  INIT_SHORTHANDS,
+  MAX_EXPANDED_LAYERS,
+  MAX_SIZE,
+  MAX_STEPS,
+  NAME_PATTERN,
+  NORM_EPSILONS,
+  OPTIMIZER_KINDS,
+  OVERFLOW_MODES,
+  PADDINGS,
+  PLAN_SCALINGS,
+  REDUCTIONS,
+  WORKER_GRADIENTS,
+} from "./limits.js";
 import type { RawSpec } from "./schema.js";
 
 type Data = Record<string, unknown>;
@@ -89,20 +107,20 @@ const keys = (...names: string[]): ReadonlySet<string> => new Set(names);
 // initialisation
 
 const INIT_SHORTHAND = oneOf(INIT_SHORTHANDS);
-const FAN_RULES = new Set(["he", "glorot", "xavier", "lecun"]);
+const FAN_RULE = new Set<string>(FAN_RULES);
 const FAN_KEYS = keys("kind", "distribution", "gain");
 const NORMAL_KEYS = keys("kind", "std", "gain");
 const UNIFORM_KEYS = keys("kind", "limit", "gain");
 const ORTHOGONAL_KEYS = keys("kind", "gain");
 const ZEROS_KEYS = keys("kind");
-const distribution = oneOf(["normal", "uniform"] as const);
+const distribution = oneOf(DISTRIBUTIONS);
 
 function init(value: unknown): unknown {
   if (typeof value === "string") return INIT_SHORTHAND(value);
   if (typeof value === "number") return positive(value);
   const kind = (value as Data | null)?.["kind"];
   const out: Data = {};
-  if (typeof kind === "string" && FAN_RULES.has(kind)) {
+  if (typeof kind === "string" && FAN_RULE.has(kind)) {
     const raw = mapping(value, FAN_KEYS);
     out["kind"] = kind;
     withDefault(out, raw, "distribution", distribution, "normal");
@@ -133,8 +151,8 @@ function init(value: unknown): unknown {
 
 const BARE = new Set<string>(BARE_LAYER_TYPES);
 const ACTIVATION = oneOf(ACTIVATION_TYPES);
-const PADDING = oneOf(["same", "valid"] as const);
-const SCALING = oneOf(["query", "logits", "none"] as const);
+const PADDING = oneOf(PADDINGS);
+const SCALING = oneOf(ATTENTION_SCALINGS);
 
 /** Each layer type's keys, and how its fields after `type` and `name` are read, in the schema's order. */
 const LAYERS: Record<string, { keys: ReadonlySet<string>; fields: (out: Data, raw: Data) => void }> = {
@@ -166,9 +184,9 @@ const LAYERS: Record<string, { keys: ReadonlySet<string>; fields: (out: Data, ra
       withDefault(out, raw, "multiplier", positive, 1);
     },
   },
-  "layer-norm": norm(1e-5),
-  "rms-norm": norm(1e-6),
-  "batch-norm": norm(1e-5),
+  "layer-norm": norm(NORM_EPSILONS["layer-norm"]),
+  "rms-norm": norm(NORM_EPSILONS["rms-norm"]),
+  "batch-norm": norm(NORM_EPSILONS["batch-norm"]),
   dropout: {
     keys: keys("type", "name", "rate"),
     fields: (out, raw) => {
@@ -291,7 +309,7 @@ function input(value: unknown): Data {
   return out;
 }
 
-const REDUCTION = oneOf(["mean", "sum"] as const);
+const REDUCTION = oneOf(REDUCTIONS);
 const CROSS_ENTROPY_KEYS = keys("kind", "classes", "reduction");
 const SQUARED_ERROR_KEYS = keys("kind", "reduction", "target-scale");
 
@@ -320,7 +338,7 @@ function learningRate(value: unknown): unknown {
   return out;
 }
 
-const OPTIMIZER_KIND = oneOf(["sgd", "momentum", "adam", "adamw"] as const);
+const OPTIMIZER_KIND = oneOf(OPTIMIZER_KINDS);
 const OPTIMIZER_KEYS = keys("kind", "learning-rate", "warmup-steps", "momentum", "betas", "epsilon", "weight-decay", "clip-norm");
 
 function optimizer(value: unknown): Data {
@@ -343,20 +361,20 @@ const HORIZON_KEYS = keys("steps", "final-loss", "weight-growth");
 
 function horizon(value: unknown): Data {
   const raw = mapping(value, HORIZON_KEYS);
-  const out: Data = { steps: integer(raw["steps"], 1, 1e12) };
+  const out: Data = { steps: integer(raw["steps"], 1, MAX_STEPS) };
   optional(out, raw, "final-loss", nonNegative);
   withDefault(out, raw, "weight-growth", positive, 1);
   return out;
 }
 
 const TRAINING_KEYS = keys("batch", "loss", "workers", "worker-gradients", "accumulation-steps", "optimizer", "horizon");
-const WORKER_GRADIENTS = oneOf(["sum", "average"] as const);
+const WORKER_GRADIENT = oneOf(WORKER_GRADIENTS);
 
 function training(value: unknown): Data {
   const raw = mapping(value, TRAINING_KEYS);
   const out: Data = { batch: size(raw["batch"]), loss: loss(raw["loss"]) };
   withDefault(out, raw, "workers", size, 1);
-  withDefault(out, raw, "worker-gradients", WORKER_GRADIENTS, "average");
+  withDefault(out, raw, "worker-gradients", WORKER_GRADIENT, "average");
   withDefault(out, raw, "accumulation-steps", size, 1);
   optional(out, raw, "optimizer", optimizer);
   optional(out, raw, "horizon", horizon);
@@ -379,8 +397,8 @@ const PLAN_KEYS = keys(
   "flush-subnormals",
   "scaling",
 );
-const OVERFLOW = oneOf(["saturate", "infinity-or-nan"] as const);
-const PLAN_SCALING = oneOf(["none", "tensor", "block"] as const);
+const OVERFLOW = oneOf(OVERFLOW_MODES);
+const PLAN_SCALING = oneOf(PLAN_SCALINGS);
 
 function plan(value: unknown, named: boolean): Data {
   const raw = mapping(value, PLAN_KEYS);
