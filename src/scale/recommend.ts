@@ -5,9 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowExceeds, probabilityAnyAboveBounds } from "../risk/bounds.js";
-import { anyOf, normalSf } from "../risk/_math.js";
-import { elementLaw, isConstantLike, isEmpty, nonzeroElements } from "../risk/laws.js";
+import { energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
 import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, riskProfile, sameDistribution, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
@@ -312,60 +310,6 @@ class OverflowNarrowing implements OverflowBounds {
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
   }
-}
-
-// Upper bounds on the draw integrals of src/risk/profile.ts by segments of draws, one standard deviation wide:
-// every integrand there is monotone in the draw, so a segment contributes at most its mass times the integrand at
-// its worse end. The segments are visited from the integrand's large end and the visit stops once the integrand has
-// fallen so far that everything beyond adds under a twentieth (bounded by the integrand there times the mass left).
-// The result is multiplied by a factor that covers the difference between the true draw integral and the rule that
-// evaluates it (a positive-weight rule on ±9 standard deviations, or a closed form of the same integral), whose
-// weight on any segment is far within twice the segment's mass (the bounds hold with 1.2; checked in test/scale/recommend-bounds.test.ts).
-const RULE_FACTOR = 2;
-const SEGMENT_LIMIT = 9;
-// MASS_ABOVE[j] = P(z > j − 9), j = 0 … 18
-const MASS_ABOVE = Array.from({ length: 2 * SEGMENT_LIMIT + 1 }, (_, j) => normalSf(j - SEGMENT_LIMIT));
-
-// Σ over unit segments of the draws of mass × the integrand at the segment's larger-valued end; `rising`: the
-// integrand grows with the draw (visited from +9 down), else it falls (visited from −9 up).
-function segmentBound(profile: MagnitudeProfile, rising: boolean, f: (r: number) => number): number {
-  const step = 2 ** profile.log2Spread;
-  // beyond ±9 the integrand is at most 1
-  let sum = MASS_ABOVE[2 * SEGMENT_LIMIT]!;
-  let r = profile.rms * 2 ** (profile.log2Spread * (rising ? SEGMENT_LIMIT : -SEGMENT_LIMIT));
-  for (let j = 2 * SEGMENT_LIMIT; j > 0; j--) {
-    const value = f(r);
-    // the segment next to the end just evaluated, toward the small end: mass P(j − 10 < |z| beyond …) by symmetry
-    const mass = MASS_ABOVE[j - 1]! - MASS_ABOVE[j]!;
-    sum += mass * value;
-    // everything further toward the small end: at most the integrand here times the mass there
-    const rest = value * (1 - MASS_ABOVE[j - 1]!);
-    if (rest <= sum / 20 || j === 1) return Math.min(1, RULE_FACTOR * (sum + rest));
-    r = rising ? r / step : r * step;
-  }
-  return 1;
-}
-
-/**
- * An upper bound on {@link probabilityAnyAbove}(profile, t) from its integrand at a few draws: far tighter than
- * the extreme-draw bound where the probability is small, for a fraction of the integral's evaluations; exact where
- * the probability is a closed form.
- */
-export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): number {
-  if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return probabilityAnyAbove(profile, t);
-  const law = elementLaw(profile);
-  const n = nonzeroElements(profile);
-  return segmentBound(profile, true, (r) => anyOf(law.above(r, t), n));
-}
-
-/**
- * An upper bound on {@link energyBelow}(profile, t) from its integrand at a few draws (the share falls as the draw
- * rises), as {@link probabilityAnyAboveUpper}: it settles most comparisons of a small share with a tolerance.
- */
-export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
-  if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return energyBelow(profile, t);
-  const law = elementLaw(profile);
-  return segmentBound(profile, false, (r) => law.energyBelow(r, t));
 }
 
 function binades(n: number): string {

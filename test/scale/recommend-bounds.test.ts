@@ -4,7 +4,8 @@
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { energyBelow, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../../src/risk/index.js";
-import { boundedLossScaleCurves, energyBelowUpper, probabilityAnyAboveUpper } from "../../src/scale/recommend.js";
+import { energyBelowUpper, probabilityAnyAboveUpper } from "../../src/risk/bounds.js";
+import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
 import { lossScaleWindow } from "../../src/scale/window.js";
 
 const SHAPES: { shape: ElementShape; bound?: number; elementLog2Spread?: number }[] = [
