@@ -67,12 +67,7 @@ async function readNpyLayout(handle: FileHandle, path: string, first: Uint8Array
 /** Read `length` bytes at `position` into a fresh buffer; shorter when the file ends first. */
 async function readExactly(handle: FileHandle, position: number, length: number): Promise<Buffer> {
   const buffer = Buffer.alloc(length);
-  let filled = 0;
-  while (filled < length) {
-    const { bytesRead } = await handle.read(buffer, filled, length - filled, position + filled);
-    if (bytesRead === 0) break;
-    filled += bytesRead;
-  }
+  const filled = await readInto(handle, buffer, length, position);
   return filled === length ? buffer : buffer.subarray(0, filled);
 }
 
