@@ -4,6 +4,7 @@
  * validation and the cross-key checks.
  */
 import type { FormatName } from "../formats/names.js";
+import { NORM_EPSILONS } from "./limits.js";
 import type { RawInit, RawLayer, RawPlan, RawSpec } from "./schema.js";
 import type {
   ActivationName,
@@ -98,8 +99,8 @@ function normalizeLayer(item: RawLayer, index: number, path: SpecPath): LayerSpe
     case "layer-norm":
     case "rms-norm":
     case "batch-norm": {
-      // epsilon defaults: 1e-5 for layer and batch norm, 1e-6 for rms norm (common practice)
-      const defaults = { gain: 1, epsilon: raw.type === "rms-norm" ? 1e-6 : 1e-5 };
+      // a bare `- layer-norm` has no defaults filled in: the schema's ones
+      const defaults = { gain: 1, epsilon: NORM_EPSILONS[raw.type] };
       const given = "gain" in raw ? raw : defaults;
       return { name, path, family: raw.type, gain: given.gain, epsilon: given.epsilon };
     }
