@@ -85,6 +85,9 @@ export const WORKER_GRADIENTS = ["sum", "average"] as const;
 export const OVERFLOW_MODES = ["saturate", "infinity-or-nan"] as const;
 /** Scale factors for 8-bit formats. */
 export const PLAN_SCALINGS = ["none", "tensor", "block"] as const;
+/** leaky-relu's default slope on the negative side (common practice). */
+export const LEAKY_RELU_SLOPE = 0.01;
+
 /** Default epsilon of each normalization layer type: 1e-5 for layer and batch norm, 1e-6 for rms norm (common practice). */
 export const NORM_EPSILONS = { "layer-norm": 1e-5, "rms-norm": 1e-6, "batch-norm": 1e-5 } as const;
 

@@ -4,7 +4,7 @@
  * validation and the cross-key checks.
  */
 import type { FormatName } from "../formats/names.js";
-import { NORM_EPSILONS } from "./limits.js";
+import { LEAKY_RELU_SLOPE, NORM_EPSILONS } from "./limits.js";
 import type { RawInit, RawLayer, RawPlan, RawSpec } from "./schema.js";
 import type {
   ActivationName,
@@ -92,8 +92,7 @@ function normalizeLayer(item: RawLayer, index: number, path: SpecPath): LayerSpe
     case "softplus":
     case "identity":
     case "softmax": {
-      // leaky-relu's default slope 0.01 (common practice)
-      const slope = raw.type === "leaky-relu" ? ("slope" in raw && typeof raw.slope === "number" ? raw.slope : 0.01) : 0;
+      const slope = raw.type === "leaky-relu" ? ("slope" in raw && typeof raw.slope === "number" ? raw.slope : LEAKY_RELU_SLOPE) : 0;
       return { name, path, family: "activation", activation: raw.type as ActivationName, slope };
     }
     case "layer-norm":

@@ -16,6 +16,7 @@ import {
   FINAL_MESSAGE,
   INIT_SHORTHANDS,
   inputKindCount,
+  LEAKY_RELU_SLOPE,
   MAX_EXPANDED_LAYERS,
   MAX_SIZE,
   MAX_STEPS,
@@ -174,7 +175,7 @@ function buildSchemas(z: typeof Zod) {
           .strictObject({
             type: z.literal("leaky-relu").describe("max(x, slope·x)"),
             name: layerName,
-            slope: fraction("Slope on the negative side (default 0.01)").default(0.01),
+            slope: fraction(`Slope on the negative side (default ${LEAKY_RELU_SLOPE})`).default(LEAKY_RELU_SLOPE),
           })
           .describe("A leaky ReLU activation")
       : z

@@ -15,6 +15,7 @@ import {
   DISTRIBUTIONS,
   FAN_RULES,
   INIT_SHORTHANDS,
+  LEAKY_RELU_SLOPE,
   MAX_EXPANDED_LAYERS,
   MAX_SIZE,
   MAX_STEPS,
@@ -241,7 +242,7 @@ const LAYERS: Record<string, { keys: ReadonlySet<string>; fields: (out: Data, ra
 for (const activation of ACTIVATION_TYPES) {
   LAYERS[activation] =
     activation === "leaky-relu"
-      ? { keys: keys("type", "name", "slope"), fields: (out, raw) => withDefault(out, raw, "slope", fraction, 0.01) }
+      ? { keys: keys("type", "name", "slope"), fields: (out, raw) => withDefault(out, raw, "slope", fraction, LEAKY_RELU_SLOPE) }
       : { keys: keys("type", "name"), fields: () => {} };
 }
 
