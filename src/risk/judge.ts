@@ -18,7 +18,7 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
-import { scaledTensor, scaledTensorRisk, worstVerdict, type TensorFormatRisk, type TensorStatistics } from "./tensor.js";
+import { scaledTensor, scaledTensorRisk, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -211,131 +211,249 @@ function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[]
  */
 export function judgePrediction(spec: NetworkSpec, prediction: Prediction, options: CheckOptions = {}): CheckResult {
   const plan = spec.precision;
-  const thresholds: RiskThresholds = { ...DEFAULT_THRESHOLDS, ...options.thresholds };
+  const thresholds = thresholdsOf(options.thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...options.thresholds });
   const lossScale = appliedLossScale(plan, options);
   const formats = judgedFormats(plan, options);
-  const plans = new Map(formats.map((format) => [format, planFor(plan, format)] as const));
-
-  // per judged format, what every tensor's judgement in it shares: the plan it is judged under, its range, its scaling
-  const settings = formats.map((format) => {
-    const evaluated = plans.get(format) ?? plan;
-    const eightBit = FORMATS[format].bits === 8;
-    return {
-      format,
-      evaluated,
-      limits: limitsFor(evaluated, format),
-      perTensorScaling: eightBit && evaluated.scaling !== "none",
-      blockScaling: eightBit && evaluated.scaling === "block" ? blockScaledRiskCached(FORMATS[format]) : null,
-    };
-  });
-  const everyFormat = options.everyFormat === true;
-
-  const tensors: TensorCheck[] = [];
-  for (const tensor of prediction.tensors) {
-    const scaled = scaledTensor(tensor, lossScale.value, thresholds);
-    // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
-    // FP32); the loss-value hazard covers a loss kept in the activation format
-    const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
-    const risks: TensorFormatRisk[] = [];
-    let verdict: Verdict = "fits";
-    for (const setting of settings) {
-      const judged = setting.evaluated[entry] === setting.format;
-      if (!judged && !everyFormat) continue;
-      const risk = scaledTensorRisk(tensor, scaled, setting.limits, {
-        judged,
-        perTensorScaling: setting.perTensorScaling,
-        blockScaling: setting.blockScaling,
-        thresholds,
-      });
-      risks.push(risk);
-      verdict = worseVerdict(verdict, risk.verdict);
-    }
-    const check: TensorCheck = {
-      id: tensor.id,
-      layer: tensor.layer,
-      layerIndex: tensor.layerIndex,
-      family: tensor.family,
-      role: tensor.role,
-      slot: tensor.slot,
-      shape: tensor.shape,
-      source: tensor.source,
-      start: tensor.start,
-      end: tensor.end,
-      statistics: scaled.statistics,
-      risks,
-      verdict,
-    };
-    tensors.push(options.ledger ? withLedger(check, tensor.ledger) : check);
+  const settings = formatSettings(plan, formats, thresholds);
+  const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
+  const training = trainingSites(spec, prediction);
+  const contexts = hazardContexts(spec, settings, lossScale.value, thresholds);
+  const hazards: HazardCheck[] = [];
+  for (let i = 0; i < prediction.hazards.length; i++) {
+    hazards.push(judgeSite(prediction.hazards[i] as HazardSite, "prediction", settings, contexts, spec, lossScale.value, thresholds));
   }
-
-  const sites = [
-    ...prediction.hazards.map((site) => ({ site, origin: "prediction" as const })),
-    ...trainingSites(spec, prediction).map((site) => ({ site, origin: "training setup" as const })),
-  ];
-  // formats judged under the same plan see a site alike: evaluate once per plan, keep each format's evaluations
-  const contexts = new Map<PrecisionPlan, HazardContext>();
-  const formatContexts = settings.map((setting) => {
-    let context = contexts.get(setting.evaluated);
-    if (context === undefined) {
-      context = hazardContext(spec, setting.evaluated, lossScale.value, thresholds);
-      contexts.set(setting.evaluated, context);
-    }
-    return context;
-  });
-  const hazards: HazardCheck[] = sites.map(({ site, origin }) => {
-    // each judged format sees the site under its own plan; keep the evaluations in that format
-    const checks = new Map<HazardContext, HazardCheck>();
-    const perFormat = formatContexts.map((context) => {
-      let evaluated = checks.get(context);
-      if (evaluated === undefined) {
-        evaluated = evaluateHazard(site, context, origin);
-        checks.set(context, evaluated);
-      }
-      return evaluated;
-    });
-    const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, plan, lossScale.value, thresholds), origin);
-    const evaluations: HazardEvaluation[] = [];
-    const findings: Finding[] = [];
-    perFormat.forEach((c, i) => {
-      const format = formats[i];
-      for (const e of c.evaluations) if (e.format === format) evaluations.push(e);
-      for (const f of c.findings) if (f.format === format) findings.push(f);
-    });
-    return { ...first, evaluations, findings };
-  });
-
-  const formatChecks: FormatCheck[] = settings.map(({ format, evaluated }) => {
-    const findings: Finding[] = [];
-    let tensorsJudged = 0;
-    for (const tensor of tensors) {
-      for (const risk of tensor.risks) if (risk.format === format) for (const finding of risk.findings) findings.push(finding);
-      if (evaluated[tensor.slot] === format) tensorsJudged++;
-    }
-    for (const hazard of hazards) for (const finding of hazard.findings) if (finding.format === format) findings.push(finding);
-    const judgement = judge(findings);
-    return {
-      format,
-      planned: evaluated === plan,
-      holds: PLAN_ENTRIES.filter((entry) => entryFormat(evaluated, entry) === format),
-      verdict: judgement.verdict,
-      reasons: judgement.reasons,
-      tensorsJudged,
-      findings,
-    };
-  });
+  for (let i = 0; i < training.length; i++) {
+    hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds));
+  }
+  const formatChecks: FormatCheck[] = [];
+  let verdict: Verdict = "fits";
+  for (let i = 0; i < settings.length; i++) {
+    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards);
+    verdict = worseVerdict(verdict, formatCheck.verdict);
+    formatChecks.push(formatCheck);
+  }
+  const assumptions: string[] = [];
+  for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
+  checkAssumptions(assumptions, plan, settings, lossScale, training.length > 0);
 
   return {
     version: 1,
     spec: { name: spec.name, source: spec.source, description: spec.description },
     plan,
     lossScale,
-    verdict: worstVerdict(formatChecks.map((f) => ({ severity: f.verdict }))),
+    verdict,
     formats: formatChecks,
     tensors,
     hazards,
     thresholds,
-    assumptions: [...prediction.assumptions, ...checkAssumptions(plan, formats, plans, lossScale, sites.length > prediction.hazards.length)],
+    assumptions,
     caution: CAUTION,
+  };
+}
+
+/** What every tensor's judgement in one format shares: the plan it is judged under, its range, its scaling. */
+interface FormatSetting {
+  format: FormatName;
+  evaluated: PrecisionPlan;
+  limits: RangeLimits;
+  /** the risk options of a tensor the format holds, and of one it does not hold (reported with `everyFormat`) */
+  held: TensorRiskOptions;
+  notHeld: TensorRiskOptions;
+  /** index of the first setting judged under the same plan: one hazard evaluation serves both */
+  contextIndex: number;
+}
+
+function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thresholds: RiskThresholds): FormatSetting[] {
+  const settings: FormatSetting[] = [];
+  for (let i = 0; i < formats.length; i++) {
+    const format = formats[i] as FormatName;
+    const evaluated = planFor(plan, format);
+    const eightBit = FORMATS[format].bits === 8;
+    const perTensorScaling = eightBit && evaluated.scaling !== "none";
+    const blockScaling = eightBit && evaluated.scaling === "block" ? blockScaledRiskCached(FORMATS[format]) : null;
+    let contextIndex = i;
+    for (let j = 0; j < i; j++) {
+      if ((settings[j] as FormatSetting).evaluated === evaluated) {
+        contextIndex = j;
+        break;
+      }
+    }
+    settings.push({
+      format,
+      evaluated,
+      limits: limitsFor(evaluated, format),
+      held: { judged: true, perTensorScaling, blockScaling, thresholds },
+      notHeld: { judged: false, perTensorScaling, blockScaling, thresholds },
+      contextIndex,
+    });
+  }
+  return settings;
+}
+
+// a copy of complete thresholds built by one literal, so every check's thresholds share one layout
+function thresholdsOf(t: RiskThresholds): RiskThresholds {
+  return {
+    overflowAtRisk: t.overflowAtRisk,
+    overflowFails: t.overflowFails,
+    energyAtRisk: t.energyAtRisk,
+    energyFails: t.energyFails,
+    flushedAtRisk: t.flushedAtRisk,
+    flushedFails: t.flushedFails,
+    subnormalAtRisk: t.subnormalAtRisk,
+    headroomAtRisk: t.headroomAtRisk,
+    accumulationAtRisk: t.accumulationAtRisk,
+    accumulationFails: t.accumulationFails,
+    maxQuantile: t.maxQuantile,
+    lowQuantile: t.lowQuantile,
+  };
+}
+
+function judgeTensors(
+  predicted: readonly TensorPrediction[],
+  settings: readonly FormatSetting[],
+  lossScale: number,
+  thresholds: RiskThresholds,
+  everyFormat: boolean,
+  ledger: boolean,
+): TensorCheck[] {
+  const tensors: TensorCheck[] = [];
+  for (let i = 0; i < predicted.length; i++) {
+    const tensor = predicted[i] as TensorPrediction;
+    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat);
+    tensors.push(ledger ? withLedger(check, tensor.ledger) : check);
+  }
+  return tensors;
+}
+
+function judgeTensor(
+  tensor: TensorPrediction,
+  settings: readonly FormatSetting[],
+  lossScale: number,
+  thresholds: RiskThresholds,
+  everyFormat: boolean,
+): TensorCheck {
+  const scaled = scaledTensor(tensor, lossScale, thresholds);
+  // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
+  // FP32); the loss-value hazard covers a loss kept in the activation format
+  const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+  const risks: TensorFormatRisk[] = [];
+  let verdict: Verdict = "fits";
+  for (let i = 0; i < settings.length; i++) {
+    const setting = settings[i] as FormatSetting;
+    const judged = setting.evaluated[entry] === setting.format;
+    if (!judged && !everyFormat) continue;
+    const risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
+    risks.push(risk);
+    verdict = worseVerdict(verdict, risk.verdict);
+  }
+  return {
+    id: tensor.id,
+    layer: tensor.layer,
+    layerIndex: tensor.layerIndex,
+    family: tensor.family,
+    role: tensor.role,
+    slot: tensor.slot,
+    shape: tensor.shape,
+    source: tensor.source,
+    start: tensor.start,
+    end: tensor.end,
+    statistics: scaled.statistics,
+    risks,
+    verdict,
+  };
+}
+
+// per setting, the hazard context of its plan (settings judged under the same plan share one)
+function hazardContexts(spec: NetworkSpec, settings: readonly FormatSetting[], lossScale: number, thresholds: RiskThresholds): HazardContext[] {
+  const contexts: HazardContext[] = [];
+  for (let i = 0; i < settings.length; i++) {
+    const setting = settings[i] as FormatSetting;
+    contexts.push(setting.contextIndex === i ? hazardContext(spec, setting.evaluated, lossScale, thresholds) : (contexts[setting.contextIndex] as HazardContext));
+  }
+  return contexts;
+}
+
+// One operation site: each judged format sees it under its own plan; keep the evaluations in that format.
+function judgeSite(
+  site: HazardSite,
+  origin: HazardCheck["origin"],
+  settings: readonly FormatSetting[],
+  contexts: readonly HazardContext[],
+  spec: NetworkSpec,
+  lossScale: number,
+  thresholds: RiskThresholds,
+): HazardCheck {
+  const perFormat: HazardCheck[] = [];
+  for (let i = 0; i < settings.length; i++) {
+    const shared = (settings[i] as FormatSetting).contextIndex;
+    perFormat.push(shared === i ? evaluateHazard(site, contexts[i] as HazardContext, origin) : (perFormat[shared] as HazardCheck));
+  }
+  const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, spec.precision, lossScale, thresholds), origin);
+  const evaluations: HazardEvaluation[] = [];
+  const findings: Finding[] = [];
+  for (let i = 0; i < perFormat.length; i++) {
+    const format = (settings[i] as FormatSetting).format;
+    const c = perFormat[i] as HazardCheck;
+    for (let j = 0; j < c.evaluations.length; j++) {
+      const e = c.evaluations[j] as HazardEvaluation;
+      if (e.format === format) evaluations.push(e);
+    }
+    for (let j = 0; j < c.findings.length; j++) {
+      const f = c.findings[j] as Finding;
+      if (f.format === format) findings.push(f);
+    }
+  }
+  return siteCheck(first, evaluations, findings);
+}
+
+// `{ ...first, evaluations, findings }`, by literals: the keys of evaluateHazard's result in its order
+function siteCheck(first: HazardCheck, evaluations: HazardEvaluation[], findings: Finding[]): HazardCheck {
+  const check: HazardCheck = {
+    kind: first.kind,
+    layer: first.layer,
+    detail: first.detail,
+    guarded: first.guarded,
+    terms: first.terms,
+    input: first.input,
+    origin: first.origin,
+    evaluations,
+    findings,
+  };
+  if (first.constant !== undefined) check.constant = first.constant;
+  return check;
+}
+
+function judgeFormat(setting: FormatSetting, plan: PrecisionPlan, tensors: readonly TensorCheck[], hazards: readonly HazardCheck[]): FormatCheck {
+  const { format, evaluated } = setting;
+  const findings: Finding[] = [];
+  let tensorsJudged = 0;
+  for (let i = 0; i < tensors.length; i++) {
+    const tensor = tensors[i] as TensorCheck;
+    const risks = tensor.risks;
+    for (let j = 0; j < risks.length; j++) {
+      const risk = risks[j] as TensorFormatRisk;
+      if (risk.format === format) for (let k = 0; k < risk.findings.length; k++) findings.push(risk.findings[k] as Finding);
+    }
+    if (evaluated[tensor.slot] === format) tensorsJudged++;
+  }
+  for (let i = 0; i < hazards.length; i++) {
+    const hazardFindings = (hazards[i] as HazardCheck).findings;
+    for (let j = 0; j < hazardFindings.length; j++) {
+      const finding = hazardFindings[j] as Finding;
+      if (finding.format === format) findings.push(finding);
+    }
+  }
+  const judgement = judge(findings);
+  const holds: PlanEntry[] = [];
+  for (const entry of PLAN_ENTRIES) if (entryFormat(evaluated, entry) === format) holds.push(entry);
+  return {
+    format,
+    planned: evaluated === plan,
+    holds,
+    verdict: judgement.verdict,
+    reasons: judgement.reasons,
+    tensorsJudged,
+    findings,
   };
 }
 
@@ -443,14 +561,14 @@ function constantProfile(value: number): MagnitudeProfile {
   return { elements: 1, zeroFraction: 0, shape: "constant", rms: value, log2Spread: 0 };
 }
 
+// appends the check's assumptions to `notes`
 function checkAssumptions(
+  notes: string[],
   plan: PrecisionPlan,
-  formats: readonly FormatName[],
-  plans: ReadonlyMap<FormatName, PrecisionPlan>,
+  settings: readonly FormatSetting[],
   lossScale: AppliedLossScale,
   addedSites: boolean,
-): string[] {
-  const notes: string[] = [];
+): void {
   if (lossScale.origin === "none") {
     notes.push(
       lossScale.window?.empty
@@ -469,13 +587,13 @@ function checkAssumptions(
     "Overflow risk is the probability that at least one element of a step passes the overflow threshold, with " +
       "elements independent given the scale and the scale spread over draws as predicted.",
   );
-  for (const format of formats) {
-    const evaluated = plans.get(format);
-    if (evaluated !== undefined && evaluated !== plan) {
+  for (const { format, evaluated } of settings) {
+    if (evaluated !== plan) {
       const held = PLAN_ENTRIES.filter((entry) => evaluated[entry] === format);
       notes.push(`${format} is not in the plan; it is judged holding ${held.join(", ")} in place of the plan's formats.`);
     }
   }
+  const formats = settings.map((setting) => setting.format);
   if (formats.includes("bfloat16")) {
     notes.push("bfloat16 values below the smallest normal 2^-126 are treated as flushed to zero, as much hardware does (SCIENCE.md §1.2).");
   }
@@ -489,6 +607,5 @@ function checkAssumptions(
   if (addedSites) {
     notes.push("The loss value, gradient sums across workers and the optimizer epsilon are judged from the training setup.");
   }
-  return notes;
 }
 

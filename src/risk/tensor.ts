@@ -88,17 +88,17 @@ export interface ScaledTensor {
  * the same shape, whatever propagation fields the prediction carried.
  */
 export function riskProfile(profile: MagnitudeProfile, factor = 1): MagnitudeProfile {
-  const view: MagnitudeProfile = {
+  const bound = profile.bound;
+  // every key always present (undefined when the prediction has none), so the view has one layout
+  return {
     elements: profile.elements,
     zeroFraction: profile.zeroFraction,
     shape: profile.shape,
     rms: profile.rms * factor,
     log2Spread: profile.log2Spread,
+    bound: bound === undefined ? undefined : bound * factor,
+    elementLog2Spread: profile.elementLog2Spread,
   };
-  // absent fields stay absent (a spread copy keeps them so); set ones are kept, the bound scaled with the elements
-  if (profile.bound !== undefined) view.bound = profile.bound * factor;
-  if (profile.elementLog2Spread !== undefined) view.elementLog2Spread = profile.elementLog2Spread;
-  return view;
 }
 
 /** {@link tensorStatistics}, keeping the scaled profiles for {@link scaledTensorRisk}. */

@@ -42,7 +42,15 @@ describe("riskProfile", () => {
     expect(riskProfile(full, 8)).toEqual({ elements: scaled.elements, zeroFraction: scaled.zeroFraction, shape: scaled.shape, rms: scaled.rms, log2Spread: scaled.log2Spread, bound: scaled.bound });
     const logNormal = profile({ shape: "log-normal", elementLog2Spread: 1.5 });
     expect(riskProfile(logNormal)).toEqual(logNormal);
-    expect("bound" in riskProfile(logNormal)).toBe(false);
+    expect(riskProfile(logNormal).bound).toBeUndefined();
+  });
+
+  it("gives every profile one layout: the same keys in the same order, whatever fields the prediction carried", () => {
+    const keys = Object.keys(riskProfile(profile({})));
+    expect(keys).toEqual(["elements", "zeroFraction", "shape", "rms", "log2Spread", "bound", "elementLog2Spread"]);
+    const full: MagnitudeProfile = { ...profile({ shape: "bounded", bound: 3 }), meanSquare: 0.2, maxElement: 2 };
+    expect(Object.keys(riskProfile(full, 4))).toEqual(keys);
+    expect(Object.keys(riskProfile(profile({ shape: "log-normal", elementLog2Spread: 1.5 })))).toEqual(keys);
   });
 });
 
