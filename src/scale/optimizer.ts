@@ -29,7 +29,8 @@ export interface UpdateLoss {
   withoutMaster: number;
   /** lost share with a binary32 master copy */
   withBinary32Master: number;
-  /** lost share with compensated (Kahan) summation into the stored weights: about twice the precision */
+  /** lost share with compensated (Kahan) summation into the format that receives the update (the master copy if
+   * there is one, else the stored weights): about twice its precision */
   compensated: number;
   /** with stochastic rounding nothing is lost in expectation; steps until rounding noise falls below 10% of the summed update */
   stochasticStepsToAverage: number;
@@ -165,7 +166,8 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
   const master = plan.masterWeights === "none" ? null : getFormat(plan.masterWeights);
   const binary32 = getFormat("binary32");
   const updateFormat = master ?? weightFormat;
-  const compensatedFormat = { precision: 2 * weightFormat.precision, emin: weightFormat.emin };
+  // compensated summation into the format that receives the update: about twice its precision (Kahan 1965)
+  const compensatedFormat = { precision: 2 * updateFormat.precision, emin: updateFormat.emin };
   const stateFlushBound = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal / 2;
   const stateOverflow = stateFormat.overflowThreshold;
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
@@ -175,7 +177,9 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
   // lost shares: without a master copy, with a binary32 one, as planned, with compensated summation
   const sums = new SwampingSums([weightFormat, binary32, updateFormat, compensatedFormat]);
   const tensors: WeightOptimizerCheck[] = [];
+  const gradientEnd = new Map<string, MagnitudeProfile>();
   for (const { weight, gradient } of weightPairs(prediction)) {
+    gradientEnd.set(weight.id, gradient.end);
     // the weights at the end of the horizon have grown; their ulp with them
     const w = weight.end;
     const updates: UpdateLoss[] = points.map(({ at, lr, firstStep }) => {
@@ -231,7 +235,7 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
       })()
     : null;
 
-  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat });
+  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd });
 }
 
 /** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
@@ -249,7 +253,15 @@ function summarise(
   plan: PrecisionPlan,
   tensors: WeightOptimizerCheck[],
   epsilon: OptimizerCheck["epsilon"],
-  formats: { weightFormat: Format; stateFormat: Format; updateFormat: Format },
+  formats: {
+    weightFormat: Format;
+    stateFormat: Format;
+    updateFormat: Format;
+    binary32: Format;
+    compensatedFormat: Pick<Format, "precision" | "emin">;
+    /** each weight's gradient at the end of the horizon, by weight id */
+    gradientEnd: Map<string, MagnitudeProfile>;
+  },
 ): OptimizerCheck {
   let worst: OptimizerCheck["worst"] = null;
   let worstPeak = 0;
@@ -272,47 +284,121 @@ function summarise(
     if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
   };
   const pct = (x: number) => `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
-  const into = plan.masterWeights === "none" ? `the stored ${formats.weightFormat.name} weights` : `the ${formats.updateFormat.name} master copy`;
+  const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
+  const master = plan.masterWeights !== "none";
+  const into = master ? `the ${updateFormat.name} master copy` : `the stored ${weightFormat.name} weights`;
 
+  /**
+   * The remedies for lost updates (the worst tensor at its worst point) and lost decay steps, each with its
+   * computed effect and memory cost. Only changes that differ from the plan and lose less are proposed: a
+   * binary32 master copy only when binary32 is more precise than the format receiving the update.
+   */
+  function updateRemedies(u: UpdateLoss | null, weight: string, decayLoss: { ratio: number; lost: number } | null): string[] {
+    // a remedy must lose visibly less than the plan: never "100% lost instead of 100%"
+    const less = (share: number, planned: number) => share < planned && pct(share) !== pct(planned);
+    // what a remedy does to each finding: a smaller share, or the same one still lost
+    const effect = (updates: number, decaySteps: number) =>
+      [
+        u === null
+          ? null
+          : less(updates, u.planned)
+            ? `${pct(updates)} of the updates lost instead of ${pct(u.planned)}`
+            : `${pct(updates)} of the updates still lost`,
+        decayLoss === null
+          ? null
+          : less(decaySteps, decayLoss.lost)
+            ? `weight decay steps lost for ${pct(decaySteps)} of the weights instead of ${pct(decayLoss.lost)}`
+            : `weight decay steps still lost for ${pct(decaySteps)} of the weights`,
+      ]
+        .filter((x) => x !== null)
+        .join("; ");
+    const better = (updates: number, decaySteps: number) =>
+      (u !== null && less(updates, u.planned)) || (decayLoss !== null && less(decaySteps, decayLoss.lost));
+    const found: string[] = [];
+    if (binary32.precision > updateFormat.precision) {
+      const updates = u?.withBinary32Master ?? 0;
+      const decaySteps = decayLoss === null ? 0 : decoupledDecayLost(decayLoss.ratio, binary32);
+      if (better(updates, decaySteps)) {
+        const what = master ? `a binary32 master copy instead of ${updateFormat.name}` : "keep a binary32 master copy of the weights";
+        found.push(`${what}: ${effect(updates, decaySteps)} (+${binary32.bytes - (master ? updateFormat.bytes : 0)} bytes per parameter)`);
+      }
+    }
+    // compensated (Kahan 1965) summation carries the rounding error of each add in a second buffer of the same
+    // format: the sum keeps about twice the precision, in the same exponent range (common practice)
+    const compensated = {
+      updates: u?.compensated ?? 0,
+      decaySteps: decayLoss === null ? 0 : decoupledDecayLost(decayLoss.ratio, formats.compensatedFormat),
+    };
+    const kahan = better(compensated.updates, compensated.decaySteps)
+      ? `compensated (Kahan) summation into ${into}: ${effect(compensated.updates, compensated.decaySteps)} (+${updateFormat.bytes} bytes per parameter for the compensation buffer)`
+      : null;
+    // it comes before stochastic rounding when it brings the lost share within the tolerated one
+    const kahanFirst = compensated.updates <= OPTIMIZER_THRESHOLDS.lostAtRisk && !(decayLoss !== null && compensated.decaySteps > OPTIMIZER_THRESHOLDS.lostAtRisk);
+    if (kahan !== null && kahanFirst) found.push(kahan);
+    // stochastic rounding (Gupta et al. 2015) rounds up with probability equal to the remainder: unbiased, so
+    // an update below half an ulp still moves the weight in expectation
+    const target = master ? ` into ${into}` : "";
+    const steps = u !== null ? u.stochasticStepsToAverage : stochasticStepsToAverage(decayLoss!.ratio, 1, updateFormat);
+    // a typical update of an ulp or more needs no averaging: only the noise of smaller ones would be worth a count
+    const noise =
+      steps <= 1
+        ? ""
+        : `; the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% after about ${steps < 1e6 ? steps : steps.toExponential(2).replace("e+", "e")} steps`;
+    found.push(
+      `round the weight update stochastically${target}: nothing lost in expectation${u !== null && decayLoss !== null ? ", weight decay steps included" : ""}${noise} (no extra memory)`,
+    );
+    if (kahan !== null && !kahanFirst) found.push(kahan);
+    return found;
+  }
+
+  // the updates of the worst tensor at its worst point, when more than the tolerated share is lost
+  let lostUpdate: UpdateLoss | null = null;
   if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
     raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk");
     reasons.push(
       `${pct(worst.lostShare)} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.`,
     );
     const t = tensors.find((x) => x.weight === worst!.weight)!;
-    const u = t.updates.find((x) => x.at === worst!.at)!;
-    if (plan.masterWeights === "none") {
-      remedies.push(`keep a binary32 master copy of the weights: ${pct(u.withBinary32Master)} lost instead of ${pct(u.planned)} (+4 bytes per parameter)`);
-      remedies.push(
-        `round the weight update stochastically: nothing lost in expectation; the rounding noise of ${worst.weight} averages below 10% after about ${u.stochasticStepsToAverage} steps (no extra memory)`,
-      );
-      remedies.push(
-        `compensated (Kahan) summation into the stored weights: ${pct(u.compensated)} lost (+${formats.weightFormat.bytes} bytes per parameter for the compensation buffer)`,
-      );
-    } else {
-      remedies.push(`a binary32 master copy instead of ${formats.updateFormat.name}: ${pct(u.withBinary32Master)} lost`);
-    }
+    lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
   }
+  const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
   const decay = tensors.map((t) => t.decayLost ?? 0).reduce((a, b) => Math.max(a, b), 0);
-  if (decay > OPTIMIZER_THRESHOLDS.lostAtRisk) {
+  const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
+  if (decayFinding) {
     raise("at-risk");
     reasons.push(
-      `weight decay steps (learning rate × decay = ${(optimizer.learningRate.end * optimizer.weightDecay).toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${formats.updateFormat.name} at the end learning rate.`,
+      `weight decay steps (learning rate × decay = ${decayRatio.toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.`,
     );
   }
+  if (lostUpdate !== null || decayFinding) remedies.push(...updateRemedies(lostUpdate, worst?.weight ?? "", decayFinding ? { ratio: decayRatio, lost: decay } : null));
+
   if (worstSecondMoment > OPTIMIZER_THRESHOLDS.momentFlushAtRisk) {
     raise("at-risk");
     reasons.push(
-      `${pct(worstSecondMoment)} of the second moments of ${worstSecondMomentTensor} flush to zero in ${formats.stateFormat.name} at the first step ((1 − β2)·g² below the smallest subnormal).`,
+      `${pct(worstSecondMoment)} of the second moments of ${worstSecondMomentTensor} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest subnormal).`,
     );
-    if (formats.stateFormat.name !== "binary32") remedies.push("hold the optimizer states in binary32 (+ their size again in bytes)");
+    // binary32 states only where they flush less: the same first-step bound with binary32's smallest value
+    const gradient = formats.gradientEnd.get(worstSecondMomentTensor);
+    const wider = plan.flushSubnormals ? binary32.minNormal < stateFormat.minNormal : binary32.minSubnormal < stateFormat.minSubnormal;
+    if (gradient !== undefined && wider) {
+      const bound = plan.flushSubnormals ? binary32.minNormal : binary32.minSubnormal / 2;
+      const flushed = fractionBelow(gradient, Math.sqrt(bound / (1 - optimizer.betas[1])));
+      if (flushed < worstSecondMoment) {
+        // Adam keeps two states per parameter (first and second moments; Kingma & Ba 2015)
+        const extra = 2 * (binary32.bytes - stateFormat.bytes);
+        remedies.push(
+          `hold the optimizer states in binary32 instead of ${stateFormat.name}: ${pct(flushed)} of the second moments flush at the first step instead of ${pct(worstSecondMoment)} (+${extra} bytes per parameter for the two states)`,
+        );
+      }
+    }
   }
   if (epsilon?.vanishes) {
     raise(worstSecondMoment > 0 ? "fails" : "at-risk");
-    reasons.push(
-      `epsilon ${epsilon.value} rounds to 0 in ${formats.stateFormat.name}; where a second moment is also 0 the update divides by zero.`,
-    );
-    remedies.push(`compute the update in binary32, or raise epsilon to at least ${formats.stateFormat.minSubnormal.toExponential(2)}`);
+    reasons.push(`epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; where a second moment is also 0 the update divides by zero.`);
+    // the smallest value the state format keeps: its smallest subnormal, or its smallest normal when subnormals flush
+    const kept = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal;
+    const raiseTo = `raise epsilon to at least ${roundedUp(kept)}`;
+    remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }
   return {
     kind: optimizer.kind,
@@ -326,4 +412,12 @@ function summarise(
     reasons,
     remedies,
   };
+}
+
+/** A positive value written with three significant digits, rounded up so that it is not below `x`. */
+function roundedUp(x: number): string {
+  const digits = 10 ** (Math.floor(Math.log10(x)) - 2);
+  let up = Math.ceil(x / digits) * digits;
+  if (up < x) up += digits;
+  return up.toExponential(2);
 }
