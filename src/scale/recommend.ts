@@ -176,8 +176,11 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   });
 }
 
-/** Overflow probability per step over all gradient tensors as they drift from their start to their end profiles. */
-function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions): DynamicScaleModel {
+/**
+ * Overflow probability per step over all gradient tensors as they drift from their start to their end profiles: the
+ * model {@link lossScaleAnswer} simulates a dynamic scale with (exported for tests of its bounds).
+ */
+export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, MagnitudeProfile[]>();
   const at = (progress: number): MagnitudeProfile[] => {
@@ -189,6 +192,7 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
     return profiles;
   };
   const narrowings = new Map<number, [number, OverflowNarrowing][]>();
+  const lead = { index: -1 };
   // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
   // scale takes), without a scaled copy per scale
   return {
@@ -201,7 +205,7 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
       if (atPoint === undefined) narrowings.set(progress, (atPoint = []));
       let above: OverflowNarrowing | undefined;
       for (const [s, n] of atPoint) if (s > scale && (above === undefined || s < above.scale)) above = n;
-      const narrowing = new OverflowNarrowing(at(progress), limits.overflowLevel / scale, scale, above);
+      const narrowing = new OverflowNarrowing(at(progress), limits.overflowLevel / scale, scale, above, lead);
       atPoint.push([scale, narrowing]);
       return narrowing;
     },
@@ -214,11 +218,13 @@ function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, option
 
 /**
  * P(any gradient overflows) = 1 − Π (1 − p_i) over the tensors (independent tensors), as bounds narrowed on
- * request: from the tensors' segment upper bounds (or, lower still, what a larger scale of the same point of the
- * horizon knows: p_i grows with the scale), then with the exact p_i of the tensors with the largest upper bounds, in
- * batches growing by a tenth; the bounds on the product allow for its rounding. Once every p_i that can move the
- * product is known, the value is the product in the tensors' order, exactly as {@link OverflowNarrowing.value}
- * gives it.
+ * request. Each tensor's p_i starts bounded by what a larger scale of the same point of the horizon knows (p_i grows
+ * with the scale), or by 1; one tensor is integrated at once: the one the larger scale bounds highest or, with no
+ * larger scale, the one largest where the model last integrated (often p_i = 1 here too, which decides an overflow
+ * alone). Then, in batches growing by a tenth, the tensors with the largest upper bounds get their segment upper
+ * bound at this scale, and those still largest after it are integrated; the bounds on the product allow for its
+ * rounding. Once every p_i that can move the product is known, the value is the product in the tensors' order,
+ * exactly as {@link OverflowNarrowing.value} gives it.
  */
 class OverflowNarrowing implements OverflowBounds {
   low = 0;
@@ -227,21 +233,33 @@ class OverflowNarrowing implements OverflowBounds {
   // each tensor's bounds on p_i (equal once integrated)
   private readonly lows: Float64Array;
   readonly highs: Float64Array;
-  readonly known: Uint8Array;
-  order: number[] | null = null;
-  private done = 0;
+  // per tensor: 0 a bound from a larger scale (or 1), 1 its segment upper bound here, 2 integrated
+  private readonly state: Uint8Array;
+  /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
+  started = false;
+  // the tensors whose p_i can still move the product (upper bound above 2^−54), largest upper bound on top
+  private readonly heap: TensorHeap;
   private batch = 1;
+  private largest = -1;
 
   constructor(
     private readonly profiles: readonly MagnitudeProfile[],
     private readonly level: number,
     readonly scale = 1,
     private readonly above?: OverflowNarrowing,
+    // the model's memory of the tensor with the largest p_i it last integrated (shared by its narrowings)
+    private readonly lead: { index: number } = { index: -1 },
   ) {
     const n = profiles.length;
     this.lows = new Float64Array(n);
     this.highs = new Float64Array(n);
-    this.known = new Uint8Array(n);
+    this.state = new Uint8Array(n);
+    this.heap = new TensorHeap(this.highs);
+  }
+
+  /** whether p_i is known exactly */
+  known(i: number): boolean {
+    return this.state[i] === 2;
   }
 
   /** The probability itself, every tensor integrated that can move the product. */
@@ -250,9 +268,9 @@ class OverflowNarrowing implements OverflowBounds {
     for (let i = 0; i < this.profiles.length; i++) {
       const p = this.profiles[i]!;
       let value: number;
-      if (this.known[i] === 1) value = this.lows[i]!;
+      if (this.state[i] === 2) value = this.lows[i]!;
       // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
-      else if (this.order !== null && this.highs[i]! <= 2 ** -54) continue;
+      else if (this.started && this.highs[i]! <= 2 ** -54) continue;
       else if (probabilityAnyAboveBounds(p, this.level)[1] <= 2 ** -54) continue;
       else value = probabilityAnyAbove(p, this.level);
       none *= 1 - value;
@@ -260,32 +278,56 @@ class OverflowNarrowing implements OverflowBounds {
     return 1 - none;
   }
 
+  private integrate(i: number): void {
+    const p = probabilityAnyAbove(this.profiles[i]!, this.level);
+    this.lows[i] = p;
+    this.highs[i] = p;
+    this.state[i] = 2;
+    if (this.largest < 0 || p > this.lows[this.largest]!) {
+      this.largest = i;
+      this.lead.index = i;
+    }
+  }
+
   narrow(): void {
     if (this.exact) return;
-    if (this.order === null) {
-      // first every tensor's segment upper bound, then integrate the largest first
-      const highs = this.highs;
-      const above = this.above?.order != null ? this.above : undefined;
-      for (let i = 0; i < this.profiles.length; i++) {
-        // at a larger scale: the upper bound there, or the value widened for the rounding of the two integrals
-        const there = above === undefined ? 1 : above.known[i] === 1 ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
-        highs[i] = there <= 2 ** -54 ? there : Math.min(there, probabilityAnyAboveUpper(this.profiles[i]!, this.level));
+    const highs = this.highs;
+    const n = highs.length;
+    if (!this.started) {
+      this.started = true;
+      // what a larger scale knows: its upper bound there, or its value widened for the rounding of the two integrals
+      const above = this.above?.started ? this.above : undefined;
+      let first = -1;
+      if (above === undefined) {
+        highs.fill(1);
+        if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
+      } else {
+        for (let i = 0; i < n; i++) {
+          highs[i] = above.known(i) ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
+          if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
+        }
       }
-      this.order = [];
-      for (let i = 0; i < highs.length; i++) if (highs[i]! > 2 ** -54) this.order.push(i);
-      this.order.sort((a, b) => highs[b]! - highs[a]! || a - b);
+      if (first >= 0) this.integrate(first);
+      for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.heap.push(i);
     } else {
-      const end = Math.min(this.order.length, this.done + this.batch);
-      for (; this.done < end; this.done++) {
-        const i = this.order[this.done]!;
-        const p = probabilityAnyAbove(this.profiles[i]!, this.level);
-        this.lows[i] = p;
-        this.highs[i] = p;
-        this.known[i] = 1;
+      // a batch of work: an upper bound costs about a quarter of an integral
+      let work = this.batch;
+      while (work > 0 && this.heap.size > 0) {
+        const i = this.heap.pop();
+        if (this.state[i] === 0) {
+          this.state[i] = 1;
+          const upper = probabilityAnyAboveUpper(this.profiles[i]!, this.level);
+          if (upper < highs[i]!) highs[i] = upper;
+          if (highs[i]! > 2 ** -54) this.heap.push(i);
+          work -= 0.25;
+        } else {
+          this.integrate(i);
+          work -= 1;
+        }
       }
       this.batch = Math.ceil(this.batch * 1.1);
     }
-    if (this.done === this.order.length) {
+    if (this.heap.size === 0) {
       const value = this.value();
       this.low = value;
       this.high = value;
@@ -309,6 +351,53 @@ class OverflowNarrowing implements OverflowBounds {
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
+  }
+}
+
+// A max-heap of tensor indices by a key array (the larger key on top, the lower index among equal keys); a tensor's
+// key may fall while it is out of the heap.
+class TensorHeap {
+  private items: number[] = [];
+  constructor(private readonly keys: Float64Array) {}
+  get size(): number {
+    return this.items.length;
+  }
+  private above(a: number, b: number): boolean {
+    const ka = this.keys[a]!;
+    const kb = this.keys[b]!;
+    return ka > kb || (ka === kb && a < b);
+  }
+  push(i: number): void {
+    const items = this.items;
+    let j = items.length;
+    items.push(i);
+    while (j > 0) {
+      const parent = (j - 1) >> 1;
+      if (!this.above(i, items[parent]!)) break;
+      items[j] = items[parent]!;
+      j = parent;
+    }
+    items[j] = i;
+  }
+  pop(): number {
+    const items = this.items;
+    const top = items[0]!;
+    const last = items.pop()!;
+    const n = items.length;
+    if (n > 0) {
+      let j = 0;
+      for (;;) {
+        const l = 2 * j + 1;
+        if (l >= n) break;
+        const r = l + 1;
+        const c = r < n && this.above(items[r]!, items[l]!) ? r : l;
+        if (!this.above(items[c]!, last)) break;
+        items[j] = items[c]!;
+        j = c;
+      }
+      items[j] = last;
+    }
+    return top;
   }
 }
 
