@@ -378,6 +378,20 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
   const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, positiveOnly);
   if (!Number.isNaN(decided)) return decided;
+  if (kind !== ANY_ABOVE && integrandLaw === GAUSSIAN && profile.log2Spread >= TABLE_MIN_SPREAD) {
+    const value = gaussianTableValue(kind, profile.log2Spread, Math.log2(t) - Math.log2(profile.rms));
+    if (!Number.isNaN(value)) return value;
+  }
+  return drawSum(profile.rms, profile.log2Spread);
+}
+
+/**
+ * {@link lawOverDraws} by the draw rule itself, without the shared lattices of the Gaussian shares: the direct
+ * method the lattice interpolation is held to in the tests.
+ */
+export function directLawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
+  const decided = setLawIntegrand(profile, measureKind(measure), t, positiveOnly);
+  if (!Number.isNaN(decided)) return decided;
   return drawSum(profile.rms, profile.log2Spread);
 }
 
@@ -702,6 +716,182 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
   const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
   const high = Math.min(1, (Math.max(c, d) * inside + INNER_OUTSIDE) * (1 + 1e-9));
   return [Math.max(outerLow, low), Math.min(outerHigh, high)];
+}
+
+// Shared lattices of the Gaussian shares. The Gaussian law's below(r, t) and energyBelow(r, t) depend on t/r alone,
+// so a draw sum is F(x) = Σ_i w_i·G(x − spread·z_i) with x = log2(t/rms) and G(y) the law at r = 1, t = 2^y. On a
+// lattice y_k = (k/m)·h, h = spread·DRAW_STEP (the rule's node spacing in y, cut into m parts), the rule's nodes
+// fall on lattice points too: F_k = Σ_i w_i·G_{k + m·(half − i)}. One lattice per (measure, spread) serves every
+// tensor of that spread, every threshold, format and loss scale, each G and F computed once. F is the rule's sum
+// at every x, ripples of the rule included (its nodes are h apart, F's features G's own, about a binade wide), so
+// the lattice is made at most TABLE_STEP wide and F between its points interpolated by the Lagrange polynomial
+// through the TABLE_POINTS nearest (Abramowitz & Stegun 25.2.15 for its error term) in log F, or in log(1 − F)
+// when F is past 1/2 there, so both tails keep their relative accuracy; test/risk/laws.test.ts bounds the
+// difference from the direct rule over a sweep of spreads and thresholds. Where a point is 0, or within
+// TABLE_NEAR_ONE of 1, the direct rule decides. Below TABLE_MIN_SPREAD the spread is too small to pay for a lattice.
+const TABLE_MIN_SPREAD = 0.25;
+const TABLE_STEP = 1 / 16;
+const TABLE_POINTS = 6;
+const TABLE_NEAR_ONE = 1e-6;
+const TABLE_SLOTS = 128;
+interface GaussianLattice {
+  spread: number;
+  kind: number;
+  /** h = spread·DRAW_STEP */
+  step: number;
+  /** lattice points per node spacing h */
+  parts: number;
+  gBase: number;
+  g: Float64Array;
+  fBase: number;
+  f: Float64Array;
+}
+const TABLES: (GaussianLattice | undefined)[] = new Array<GaussianLattice | undefined>(2 * TABLE_SLOTS);
+// per slot, the spread last asked for without a lattice and how often in a row: a lattice is built on the
+// TABLE_USES-th ask, so spreads asked for a few times (most tensors of a network have their own) keep the direct rule
+const TABLE_USES = 12;
+const ASKED = new Float64Array(2 * TABLE_SLOTS).fill(NaN);
+const ASKS = new Int32Array(2 * TABLE_SLOTS);
+function gaussianLattice(kind: number, spread: number, parts: number): GaussianLattice | undefined {
+  BITS[0] = spread;
+  const hash = (Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b) >>> 24) & (TABLE_SLOTS - 1);
+  const slot = 2 * hash + (kind === BELOW ? 0 : 1);
+  let table = TABLES[slot];
+  if (table !== undefined && table.spread === spread && table.parts === parts) return table;
+  if (ASKED[slot] !== spread) {
+    ASKED[slot] = spread;
+    ASKS[slot] = 0;
+  }
+  if (++ASKS[slot]! < TABLE_USES) return undefined;
+  table = { spread, kind, step: spread * DRAW_STEP, parts, gBase: 0, g: new Float64Array(0), fBase: 0, f: new Float64Array(0) };
+  TABLES[slot] = table;
+  return table;
+}
+// lattice points per node spacing for a spread's lattice used for interpolation
+function tableParts(spread: number): number {
+  return Math.max(1, Math.ceil((spread * DRAW_STEP) / TABLE_STEP));
+}
+// a window that holds lattice points [from, to], keeping the values already there (NaN: not yet computed)
+function coverWindow(values: Float64Array, base: number, from: number, to: number): [Float64Array, number] {
+  if (values.length > 0 && from >= base && to < base + values.length) return [values, base];
+  const margin = 64;
+  const low = values.length > 0 ? Math.min(from - margin, base) : from - margin;
+  const high = values.length > 0 ? Math.max(to + margin, base + values.length - 1) : to + margin;
+  const grown = new Float64Array(high - low + 1).fill(NaN);
+  if (values.length > 0) grown.set(values, base - low);
+  return [grown, low];
+}
+// F_k; at k = m·j the order and the arithmetic of latticeMixture's sum (G at ((k/m)·h) with k/m = j + half − i
+// exact), so a crossing read off this lattice equals the per-call one bit for bit
+function latticeSum(table: GaussianLattice, k: number): number {
+  if (!(k >= table.fBase && k < table.fBase + table.f.length)) [table.f, table.fBase] = coverWindow(table.f, table.fBase, k, k);
+  const f = table.f;
+  const at = k - table.fBase;
+  const known = f[at] as number;
+  if (known === known) return known;
+  const w = DRAW_NODES.w;
+  const count = w.length;
+  const half = (count - 1) / 2;
+  const parts = table.parts;
+  const top = k + parts * half;
+  [table.g, table.gBase] = coverWindow(table.g, table.gBase, top - parts * (count - 1), top);
+  const g = table.g;
+  const offset = top - table.gBase;
+  const step = table.step;
+  const energy = table.kind === ENERGY_BELOW;
+  let sum = 0;
+  for (let i = 0; i < count; i++) {
+    const at = offset - parts * i;
+    let value = g[at] as number;
+    if (value !== value) {
+      const t = 2 ** (((top - parts * i) / parts) * step);
+      value = energy ? gaussianEnergyBelow(1, t) : gaussianBelow(1, t);
+      g[at] = value;
+    }
+    sum += (w[i] as number) * value;
+  }
+  f[at] = sum;
+  return sum;
+}
+// The spreads up to TABLE_MAX_SPREAD are read off rows of lattices at the spreads a·ROW_STEP instead (most tensors
+// of a network have a spread of their own, asked for a few times): the value at x on each of the TABLE_POINTS
+// nearest rows, then the Lagrange polynomial through those in the spread. F is smooth in the spread, but the rule's
+// ripple (its nodes are spread/8 apart in x) is not, so rows stand in for the rule at the query's spread to within
+// that ripple: below 2e-5 of F and of 1 − F up to a spread of 2.5 (it grows as e^{−c/spread²}; measured in the test).
+const TABLE_MAX_SPREAD = 2.5;
+const ROW_STEP = 1 / 16;
+const ROWS: (GaussianLattice | undefined)[] = [];
+function rowLattice(kind: number, row: number): GaussianLattice {
+  const slot = 2 * row + (kind === BELOW ? 0 : 1);
+  let table = ROWS[slot];
+  if (table === undefined) {
+    const spread = row * ROW_STEP;
+    const parts = tableParts(spread);
+    table = { spread, kind, step: spread * DRAW_STEP, parts, gBase: 0, g: new Float64Array(0), fBase: 0, f: new Float64Array(0) };
+    ROWS[slot] = table;
+  }
+  return table;
+}
+// the Lagrange polynomial through values[from … from + TABLE_POINTS − 1] at 0 … TABLE_POINTS − 1, evaluated at s
+function lagrange(values: Float64Array, from: number, s: number): number {
+  let result = 0;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    let basis = 1;
+    for (let m = 0; m < TABLE_POINTS; m++) if (m !== k) basis *= (s - m) / (k - m);
+    result += basis * (values[from + k] as number);
+  }
+  return result;
+}
+const PATCH = new Float64Array(TABLE_POINTS * TABLE_POINTS);
+const PATCH_AT = new Float64Array(TABLE_POINTS);
+const ROW_VALUES = new Float64Array(TABLE_POINTS);
+// F on a lattice at the TABLE_POINTS points around x into PATCH[offset …], and the position of x among them
+// (PATCH_AT[index]); false where a point is 0
+function gatherRow(table: GaussianLattice, x: number, index: number): boolean {
+  const u = (x / table.step) * table.parts;
+  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
+  const offset = index * TABLE_POINTS;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    const value = latticeSum(table, first + k);
+    if (!(value > 0)) return false;
+    PATCH[offset + k] = value;
+  }
+  PATCH_AT[index] = u - first;
+  return true;
+}
+// the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the lattices; NaN where the
+// direct rule decides
+function gaussianTableValue(kind: number, spread: number, x: number): number {
+  if (!Number.isFinite(x)) return NaN;
+  let rows = 1;
+  let spreadAt = 0;
+  if (spread <= TABLE_MAX_SPREAD) {
+    const v = spread / ROW_STEP;
+    const first = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
+    for (let r = 0; r < TABLE_POINTS; r++) if (!gatherRow(rowLattice(kind, first + r), x, r)) return NaN;
+    rows = TABLE_POINTS;
+    spreadAt = v - first;
+  } else {
+    const table = gaussianLattice(kind, spread, tableParts(spread));
+    if (table === undefined || !gatherRow(table, x, 0)) return NaN;
+  }
+  const count = rows * TABLE_POINTS;
+  let upper = true;
+  for (let k = 0; k < count; k++) if (!((PATCH[k] as number) > 0.5)) upper = false;
+  // across rows the complement of a share near 1 follows the rule's ripple too closely to interpolate
+  if (upper && rows > 1) return NaN;
+  for (let k = 0; k < count; k++) {
+    const value = PATCH[k] as number;
+    if (upper) {
+      const complement = 1 - value;
+      if (!(complement > TABLE_NEAR_ONE)) return NaN;
+      PATCH[k] = Math.log(complement);
+    } else PATCH[k] = Math.log(value);
+  }
+  for (let r = 0; r < rows; r++) ROW_VALUES[r] = lagrange(PATCH, r * TABLE_POINTS, PATCH_AT[r] as number);
+  const result = rows === 1 ? (ROW_VALUES[0] as number) : lagrange(ROW_VALUES, 0, spreadAt);
+  const value = upper ? 1 - Math.exp(result) : Math.exp(result);
+  return Math.min(1, Math.max(0, value));
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a

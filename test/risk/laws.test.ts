@@ -2,7 +2,10 @@ import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { anyOf } from "../../src/risk/_math.js";
 import {
+  directLawOverDraws,
   elementLaw,
+  gaussianBelowOverDraws,
+  gaussianEnergyBelowOverDraws,
   lawMixtureCrossing,
   lawOverDraws,
   lawOverDrawsBounds,
@@ -61,7 +64,8 @@ function apart(actual: number, expected: number): number {
 }
 
 describe("draw sums of the element laws", () => {
-  // the monotone sum (exceedance probabilities, closures) stops at 1e-9 of the sum and of its complement
+  // the monotone sum (exceedance probabilities, closures) stops at 1e-9 of the sum and of its complement; the
+  // Gaussian shares read off the shared lattices are held to the direct sums in the next test
   it("stay within 2e-9 of the rule's sum, relative to the value and to its complement", () => {
     let worst = 0;
     let worstCase: unknown = null;
@@ -84,7 +88,7 @@ describe("draw sums of the element laws", () => {
       }
       for (const measure of ["below", "energy-below"] as const) {
         const f = measure === "below" ? (r: number) => law.below(r, t) : (r: number) => law.energyBelow(r, t);
-        note(measure, lawOverDraws(profile, measure, t), ruleOverDraws(rms, log2Spread, f), profile, t);
+        note(measure, directLawOverDraws(profile, measure, t), ruleOverDraws(rms, log2Spread, f), profile, t);
         note(`closure ${measure}`, overDraws(rms, log2Spread, f), ruleOverDraws(rms, log2Spread, f), profile, t);
       }
     }
@@ -123,5 +127,40 @@ describe("draw sums of the element laws", () => {
       expect(lawMixtureCrossing(profile, "any-above", 1e-3)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), n), profile.log2Spread, 1e-3, true));
       expect(lawMixtureCrossing(profile, "below", 1e-2)).toBe(mixtureCrossing((v) => law.below(1, 2 ** v), profile.log2Spread, 1e-2, false));
     }
+  });
+
+  // The Gaussian shares below and energy below are read off lattices of the rule's sums shared by every threshold
+  // (rows of spreads 1/16 apart up to a spread of 2.5, one lattice per spread above), interpolated in x = log2(t/rms)
+  // and the spread. Held to the direct rule over spreads and thresholds wherever the rule, not the closed form of
+  // the small ratios, gives the share: relative to the value and to its complement (down to 1e-6, as above).
+  it("read off the shared lattices stay within 2e-6 of the direct rule", () => {
+    let worst = 0;
+    let worstCase: unknown = null;
+    let compared = 0;
+    for (let step = 0; step <= 75; step++) {
+      const log2Spread = 0.25 + step * 0.0503;
+      {
+        const shape = (["gaussian", "half-gaussian", "bounded"] as const)[step % 3]!;
+        const profile: MagnitudeProfile = { elements: 4096, zeroFraction: 0.5, shape, rms: 3.1e-3 * 7 ** (step % 5), log2Spread };
+        if (shape === "bounded") profile.bound = profile.rms * 2 ** (9 * log2Spread + 8);
+        for (let x = -9 * log2Spread - 2; x <= 9 * log2Spread + 4; x += 0.0917) {
+          const t = profile.rms * 2 ** x;
+          for (const measure of ["below", "energy-below"] as const) {
+            const closed = measure === "below" ? gaussianBelowOverDraws(2 ** x, log2Spread) : gaussianEnergyBelowOverDraws(2 ** x, log2Spread);
+            if (!Number.isNaN(closed)) continue;
+            const direct = directLawOverDraws(profile, measure, t);
+            const d = apart(lawOverDraws(profile, measure, t), direct);
+            compared++;
+            if (d > worst) {
+              worst = d;
+              worstCase = { measure, log2Spread, x, direct, shape };
+            }
+          }
+        }
+      }
+    }
+    expect(compared).toBeGreaterThan(20000);
+    if (worst >= 2e-6) console.log(JSON.stringify(worstCase));
+    expect(worst).toBeLessThan(2e-6);
   });
 });
