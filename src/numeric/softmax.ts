@@ -14,8 +14,16 @@
  * Quadrature: both integrals are taken by the trapezoid rule on the whole line (u = ln t, and Z), which converges
  * geometrically for integrands analytic in a strip (Trefethen & Weideman 2014, "The exponentially convergent
  * trapezoidal rule", SIAM Review 56(3), §5). exp(−t·e^(s(x+iy))) stays bounded for |y| < π/(2s), so a step of
- * 0.3/s in Z keeps the discretisation error near e^(−π²/0.3) ≈ 1e-14; u has a strip of half-width π/2 and takes a
- * step of 0.25.
+ * 0.3/s in Z keeps the discretisation error near e^(−π²/0.3) ≈ 1e-14, and a step of at most 0.75 resolves the
+ * Gaussian weight itself to e^(−2π²/0.75²) ≈ 6e-16 (the same paper, the Gaussian example); u has a strip of
+ * half-width π/2 and takes a step of 0.25.
+ *
+ * Where the sums start (derived): every integrand is at most K·t for small t (t·L_1 ≤ t·E[e^(sZ)] = t·e^(s²/2);
+ * t²·L_2 ≤ t·e^(s²/2)/e since y·e^(−y) ≤ 1/e; the log-sum-exp term ≤ C·t·e^(s²/2)), so the nodes of u below L add at
+ * most K·e^L·h/(1 − e^(−h)). Against the smallest possible result (E[p] = 1/C, E[p²] ≥ 1/C² and
+ * E[p_n p_m] ≥ 1/C² by Jensen, E[ln Σ e^z] ≥ ln C by Jensen) this fixes L for a relative cut-off below 10⁻¹³
+ * (10⁻¹² for the pair moment); the nodes stay on the grid anchored at −40 − ln C − s², so that the cut only drops
+ * terms.
  */
 import { expectedMaxNormal } from "./extremes.js";
 
@@ -38,6 +46,12 @@ const ONE_HOT_VARIANCE = 400;
 /** Below this logit variance the lattice would need U_STEP/(U_STEP·s) points per step; the expansion is exact to 1e-8. */
 const SMALL_VARIANCE = 1e-4;
 const U_STEP = 0.25;
+/** Largest trapezoid step in a standard normal variable: e^(−2π²/0.75²) ≈ 6e-16 (module comment). */
+const GAUSS_STEP = 0.75;
+/** Relative bound on what the moments' sums leave out below their first node of ln t (module comment). */
+const MOMENT_CUT = 1e-13;
+/** The same for the pair moment, whose ln t step already errs by about 3e-9. */
+const PAIR_CUT = 1e-12;
 const cache = new Map<string, SoftmaxMoments>();
 
 /**
@@ -69,7 +83,16 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
   // u = ln t on steps of U_STEP, Z on a grid with s·h = U_STEP/k: every u + s·x_i falls on one lattice, so the
   // transcendental parts are evaluated once per lattice point v_j = base + j·spacing (y = e^v: 1 − e^(−y), y·e^(−y),
   // y²·e^(−y)); the weights sum to exactly 1, so that L_0 ≤ 1 and its power stays finite
-  const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, U_STEP * s), s, variance, C);
+  const h = U_STEP / (1 - Math.exp(-U_STEP)); // Σ_(m ≥ 0) h·e^(−m·h), the tail sum per e^L
+  const logC = Math.log(C);
+  // the cut for E[p] (K = e^(s²/2), result 1/C), E[p²] (K = e^(s²/2)/e, result ≥ 1/C²) and the log-sum-exp
+  // (K = C·e^(s²/2), result ≥ ln C)
+  const cut = Math.min(
+    Math.log(MOMENT_CUT / h) - logC,
+    Math.log((MOMENT_CUT * Math.E) / h) - 2 * logC,
+    Math.log((MOMENT_CUT * logC) / h) - logC,
+  ) - variance / 2;
+  const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, C, cut);
   const { a0, a1, a2 } = latticeTransforms(latticeLength, base, spacing);
   const result = momentSums(steps, low, k, n, weight, a0, a1, a2, C);
   if (cache.size > 4096) cache.clear();
@@ -173,10 +196,15 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   const sa = Math.sqrt(commonVariance);
   const se = Math.sqrt((1 - c) * variance);
   // ln t and ln u on steps of PAIR_STEP, the common part a on a grid with sa·h_a = PAIR_STEP/k (one lattice)
-  const { k, spacing, n: na, weights: wa, steps, latticeLength, base } = logLattice(PAIR_STEP, Math.min(PAIR_STEP, 0.25 * sa), sa, variance, C);
+  // nodes of ln t below the cut add at most 2·(1 + h/e)·(h/(1 − e^(−h)))·e^(s²/2)·e^L in all (module comment: the
+  // sum over ln u of u·e^z·exp(−u·e^z) is at most 1 + h/e, B ≤ 1), against E[p_n p_m] ≥ 1/C²
+  const tail = 2 * (1 + PAIR_STEP / Math.E) * (PAIR_STEP / (1 - Math.exp(-PAIR_STEP)));
+  const cut = Math.log(PAIR_CUT / tail) - 2 * Math.log(C) - variance / 2;
+  // the a lattice at most 0.25 apart in ln t (strip error e^(−π²/0.25)), at most GAUSS_STEP apart in a
+  const { k, spacing, n: na, weights: wa, steps, latticeLength, base } = logLattice(PAIR_STEP, Math.min(0.25, GAUSS_STEP * sa), sa, variance, C, cut);
   // one-class transforms of the ε part on the lattice τ = e^(base + j·spacing): 1 − E[exp(−τ e^(se·ε))] and
   // E[τ e^(se·ε)·exp(−τ e^(se·ε))]
-  const he = se > 0 ? Math.min(0.25, 0.3 / se) : 1;
+  const he = se > 0 ? Math.min(GAUSS_STEP, 0.3 / se) : 1;
   const ne = se > 0 ? 2 * Math.ceil(Z_RANGE / he) + 1 : 1;
   const we = se > 0 ? normalisedGaussianWeights(ne, he) : Float64Array.of(1);
   const { offMinus, m1 } = pairTransforms(latticeLength, base, spacing, se, he, ne, we);
@@ -221,11 +249,24 @@ function pairTransforms(
   return { offMinus, m1 };
 }
 
-/** The double trapezoid sum over ln t and ln u of gaussianSoftmaxPairMoment (symmetric: the upper triangle twice). */
+/**
+ * The double trapezoid sum over ln t and ln u of gaussianSoftmaxPairMoment (symmetric: the upper triangle twice).
+ * A row stops where B^(C−1) underflows to exactly 0 for every later ln u: node by node 1 − B ≥ max(1 − L_0(t),
+ * 1 − L_0(u)), and 1 − L_0 rises with u, so once (C − 1)·ln(1 − max(...)), with a margin of 10⁻¹² for rounding, is
+ * below −800 (e^(−745) is the smallest subnormal double, IEEE 754-2019 binary64) every later term is 0 and the sum
+ * is unchanged bit for bit.
+ */
 function pairSum(steps: number, k: number, na: number, wa: Float64Array, offMinus: Float64Array, m1: Float64Array, C: number): number {
+  const single = new Float64Array(steps); // 1 − L_0 at each node of ln t
+  for (let i = 0; i < steps; i++) {
+    let x = 0;
+    for (let r = 0; r < na; r++) x += (wa[r] as number) * (offMinus[i * k + r] as number);
+    single[i] = x;
+  }
   let sum = 0;
   for (let i = 0; i < steps; i++) {
     for (let j = i; j < steps; j++) {
+      if ((C - 1) * Math.log1p(-Math.max(single[i] as number, single[j] as number) * (1 - 1e-12)) < -800) break;
       let oneMinusB = 0;
       let m = 0;
       for (let r = 0; r < na; r++) {
@@ -247,16 +288,19 @@ function pairSum(steps: number, k: number, na: number, wa: Float64Array, offMinu
 /**
  * The shared grids of both quadratures: ln t from `low` in `steps` steps of `step`, and a Gaussian variable x (of
  * scale `scale` in the exponent) on n points of step h with scale·h = step/k ≤ `target`, so that ln t + scale·x lies
- * on one lattice of `latticeLength` points base + j·spacing. Below `low` every integrand is under e^(−37) (small-t
- * forms t·C·e^(s²/2) and t²·e^(2s²)); above low + steps·step = 10s + 5 the transforms ≈ Φ(−ln t/s) have vanished.
+ * on one lattice of `latticeLength` points base + j·spacing. The grid of ln t is anchored at −40 − ln C − s² (below
+ * which every integrand is under e^(−37)) and starts at its last node at or below `cut` (module comment); above
+ * −40 − ln C − s² + steps·step ≈ 10s + 5 the transforms ≈ Φ(−ln t/s) have vanished.
  */
-function logLattice(step: number, target: number, scale: number, variance: number, C: number) {
+function logLattice(step: number, target: number, scale: number, variance: number, C: number, cut: number) {
   const k = Math.ceil(step / target);
   const spacing = step / k;
   const h = spacing / scale;
   const n = 2 * Math.ceil(Z_RANGE / h) + 1;
-  const low = -40 - Math.log(C) - variance;
-  const steps = Math.ceil((10 * Math.sqrt(variance) + 45 + Math.log(C) + variance) / step);
+  const anchor = -40 - Math.log(C) - variance;
+  const skipped = cut > anchor ? Math.floor((cut - anchor) / step) : 0;
+  const low = anchor + skipped * step;
+  const steps = Math.ceil((10 * Math.sqrt(variance) + 45 + Math.log(C) + variance) / step) - skipped;
   return { k, spacing, n, weights: normalisedGaussianWeights(n, h), low, steps, latticeLength: steps * k + n, base: low - ((n - 1) / 2) * spacing };
 }
 
