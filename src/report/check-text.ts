@@ -44,7 +44,7 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
   const optimizer = result.optimizer;
   out += "\n" + style.role("strong", "Optimizer") + ` ${optimizer.kind}: ${verdictText(optimizer.verdict, style)}\n`;
   out += wrap(
-    `updates are added to ${optimizer.weightFormat === optimizer.updateFormat && result.plan.masterWeights === "none" ? "the stored" : "a master copy in"} ${optimizer.updateFormat}${optimizer.epsilon ? `; epsilon ${optimizer.epsilon.value} is held as ${formatValue(optimizer.epsilon.stored)} in ${optimizer.stateFormat}` : ""}.`,
+    `updates are added to ${optimizer.weightFormat === optimizer.updateFormat && result.plan.masterWeights === "none" ? `the stored ${optimizer.updateFormat} weights` : `a master copy in ${optimizer.updateFormat}`}${optimizer.epsilon ? `; epsilon ${optimizer.epsilon.value} is held as ${formatValue(optimizer.epsilon.stored)} in ${optimizer.stateFormat}` : ""}.`,
     width,
     "  ",
     "  ",
@@ -205,13 +205,19 @@ const HAZARD_WORDS: Readonly<Record<HazardCheck["kind"], string>> = {
   "optimizer-constant": "optimizer epsilon",
 };
 
+// one optimizer-constant site judges both Adam's epsilon and the stored second moment: name the one judged
+function hazardWords(hazard: HazardCheck, evaluation: HazardCheck["evaluations"][number]): string {
+  if (hazard.kind === "optimizer-constant" && evaluation.measure === "flushed-share") return "optimizer second moment";
+  return HAZARD_WORDS[hazard.kind];
+}
+
 /** The hazards section: one line per evaluation that is not "fits" (every evaluation with `all`). */
 export function renderHazards(hazards: readonly HazardCheck[], all: boolean, width: number, style: Style = PLAIN): string {
   let out = "";
   for (const hazard of hazards) {
     for (const evaluation of hazard.evaluations) {
       if (!all && evaluation.verdict === "fits") continue;
-      const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
+      const head = `  ${verdictText(evaluation.verdict, style)}  ${hazardWords(hazard, evaluation)}, ${hazard.layer}, ${evaluation.format}: `;
       out += wrap(evaluation.sentence, width, head, "      ");
     }
   }
