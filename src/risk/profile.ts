@@ -55,7 +55,7 @@ export function probabilityAnyAbove(profile: MagnitudeProfile, t: number, positi
   if (isEmpty(profile)) return 0;
   // constant magnitudes: every element equals the drawn scale, so the event is log2 r ≥ log2 t (closed form)
   if (isConstantLike(profile)) return drawReaches(profile, t);
-  return lawOverDraws(profile, "any-above", t, positiveOnly);
+  return drawIntegral(profile, positiveOnly ? ANY_ABOVE_POSITIVE : ANY_ABOVE, t);
 }
 
 // P(log2 r ≥ log2 t) for a constant-like profile: the draw's z must pass (log2 t − log2 rms)/spread
@@ -75,7 +75,7 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
     const closed = gaussianBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
   }
-  return lawOverDraws(profile, "below", t);
+  return drawIntegral(profile, BELOW, t);
 }
 
 // Whether the element law at threshold t is the Gaussian's for every draw (no bound at or below t), with a spread
@@ -97,7 +97,84 @@ export function energyBelow(profile: MagnitudeProfile, t: number): number {
     const closed = gaussianEnergyBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
   }
-  return lawOverDraws(profile, "energy-below", t);
+  return drawIntegral(profile, ENERGY_BELOW, t);
+}
+
+// The draw integrals of lawOverDraws are the costly part of the risk numbers, and the same profile meets the same
+// threshold again and again: in every format of a tensor, in the hazard and loss-scale checks, in the many specs of
+// a batch that share layers. A direct-mapped table keyed on the bits of everything lawOverDraws reads (the
+// measure, the profile's seven law fields, the threshold) returns its earlier result, bit for bit; a collision
+// replaces the older entry, so the table never grows.
+const ANY_ABOVE = 0;
+const ANY_ABOVE_POSITIVE = 1;
+const BELOW = 2;
+const ENERGY_BELOW = 3;
+const MEASURES = ["any-above", "any-above", "below", "energy-below"] as const;
+const DRAW_SLOTS = 1 << 16;
+const DRAW_KEY = 9;
+const DRAW_KEYS = new Float64Array(DRAW_SLOTS * DRAW_KEY);
+const DRAW_KEY_WORDS = new Int32Array(DRAW_KEYS.buffer);
+const DRAW_VALUES = new Float64Array(DRAW_SLOTS);
+const DRAW_FILLED = new Uint8Array(DRAW_SLOTS);
+const DRAW_PROBE = new Float64Array(DRAW_KEY);
+const DRAW_PROBE_WORDS = new Int32Array(DRAW_PROBE.buffer);
+
+// the element shapes lawOverDraws tells apart, as numbers; -1 for one it does not know (not memoised)
+function shapeCode(shape: MagnitudeProfile["shape"]): number {
+  switch (shape) {
+    case "gaussian":
+      return 0;
+    case "half-gaussian":
+      return 1;
+    case "uniform":
+      return 2;
+    case "constant":
+      return 3;
+    case "bounded":
+      return 4;
+    case "log-normal":
+      return 5;
+    default:
+      return -1;
+  }
+}
+
+// lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table
+function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): number {
+  const shape = shapeCode(profile.shape);
+  if (shape < 0) return lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
+  const bound = profile.bound;
+  const elementSpread = profile.elementLog2Spread;
+  // which optional fields are present goes with the measure into the first key
+  DRAW_PROBE[0] = measure + (bound === undefined ? 0 : 4) + (elementSpread === undefined ? 0 : 8);
+  DRAW_PROBE[1] = shape;
+  DRAW_PROBE[2] = profile.elements;
+  DRAW_PROBE[3] = profile.zeroFraction;
+  DRAW_PROBE[4] = profile.rms;
+  DRAW_PROBE[5] = profile.log2Spread;
+  DRAW_PROBE[6] = bound === undefined ? 0 : bound;
+  DRAW_PROBE[7] = elementSpread === undefined ? 0 : elementSpread;
+  DRAW_PROBE[8] = t;
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < 2 * DRAW_KEY; i++) hash = Math.imul(hash ^ (DRAW_PROBE_WORDS[i] as number), 0x01000193);
+  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
+  const slot = (hash ^ (hash >>> 12)) & (DRAW_SLOTS - 1);
+  const at = slot * 2 * DRAW_KEY;
+  if (DRAW_FILLED[slot] === 1) {
+    let same = true;
+    for (let i = 0; i < 2 * DRAW_KEY; i++) {
+      if (DRAW_KEY_WORDS[at + i] !== DRAW_PROBE_WORDS[i]) {
+        same = false;
+        break;
+      }
+    }
+    if (same) return DRAW_VALUES[slot] as number;
+  }
+  const value = lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
+  DRAW_KEYS.set(DRAW_PROBE, slot * DRAW_KEY);
+  DRAW_VALUES[slot] = value;
+  DRAW_FILLED[slot] = 1;
+  return value;
 }
 
 // The levels of profileStatistics in binades from the rms depend on the element law, the element count, the

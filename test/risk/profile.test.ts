@@ -10,6 +10,7 @@ import {
   rangeLimits,
 } from "../../src/risk/index.js";
 import { normalUpperQuantile } from "../../src/risk/_math.js";
+import { lawOverDraws } from "../../src/risk/laws.js";
 import { FORMATS } from "../../src/formats/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_SATURATING } from "./limits.js";
 
@@ -175,5 +176,45 @@ describe("rangeLimits from the format model", () => {
     expect(rangeLimits(FORMATS.binary32, { saturate: false, flushSubnormals: false })).toEqual(BINARY32);
     expect(rangeLimits(FORMATS.bfloat16, { saturate: false, flushSubnormals: true })).toEqual(BFLOAT16_FTZ);
     expect(rangeLimits(FORMATS.e4m3, { saturate: true, flushSubnormals: false })).toEqual(E4M3_SATURATING);
+  });
+});
+
+describe("the draw-integral table behind fractionBelow, energyBelow and probabilityAnyAbove", () => {
+  // the table may only ever return what lawOverDraws (src/risk/laws.ts) computes for the same inputs, bit for bit
+  it("gives lawOverDraws' own numbers, on first and repeated calls, for every shape and optional field", () => {
+    const shapes: MagnitudeProfile["shape"][] = ["gaussian", "half-gaussian", "uniform", "constant", "bounded", "log-normal"];
+    const seen: MagnitudeProfile[] = [];
+    for (const shape of shapes) {
+      for (const spread of [0.25, 1.5]) {
+        for (const extra of [{}, { bound: 3e-3 }, { elementLog2Spread: 1.2 }, { bound: 3e-3, elementLog2Spread: 0.7 }]) {
+          seen.push(profile({ shape, rms: 1e-3, log2Spread: spread, elements: 4096, zeroFraction: 0.25, ...extra }));
+        }
+      }
+    }
+    for (let round = 0; round < 2; round++) {
+      for (const p of seen) {
+        for (const t of [2 ** -24, 2 ** -14, 1e-3, 5e-3, 65504]) {
+          // the tail any element reaches: the closed forms apply to constant-like profiles only, lawOverDraws otherwise
+          if (p.shape !== "constant" && !(p.shape === "log-normal" && !((p.elementLog2Spread ?? 0) > 0))) {
+            expect(Object.is(probabilityAnyAbove(p, t), lawOverDraws(p, "any-above", t))).toBe(true);
+            expect(Object.is(probabilityAnyAbove(p, t, true), lawOverDraws(p, "any-above", t, true))).toBe(true);
+          }
+        }
+      }
+    }
+    // a profile differing in one field only is a different entry, never the neighbour's number
+    const base = profile({ shape: "uniform", rms: 1e-3, log2Spread: 1, elements: 4096 });
+    const variants = [base, { ...base, zeroFraction: 0.5 }, { ...base, elements: 4097 }, { ...base, bound: 2e-3 }, { ...base, log2Spread: 1.0000001 }];
+    for (let round = 0; round < 2; round++) {
+      for (const p of variants) {
+        for (const t of [1e-4, 3e-3]) {
+          expect(Object.is(fractionBelow(p, t), lawOverDraws(p, "below", t))).toBe(true);
+          expect(Object.is(energyBelow(p, t), lawOverDraws(p, "energy-below", t))).toBe(true);
+        }
+      }
+    }
+    const bounded = { ...base, bound: 2e-3 };
+    expect(fractionBelow(bounded, 3e-3)).toBe(1);
+    expect(fractionBelow(base, 3e-3)).toBeLessThan(1);
   });
 });
