@@ -819,6 +819,7 @@ function latticeSum(table: GaussianLattice, k: number): number {
 // ripple (its nodes are spread/8 apart in x) is not, so rows stand in for the rule at the query's spread to within
 // that ripple: below 2e-5 of F and of 1 − F up to a spread of 2.5 (it grows as e^{−c/spread²}; measured in the test).
 const TABLE_MAX_SPREAD = 2.5;
+const ROWS_UPPER_SHARE = 0.9;
 const ROW_STEP = 1 / 16;
 const ROWS: (GaussianLattice | undefined)[] = [];
 function rowLattice(kind: number, row: number): GaussianLattice {
@@ -878,8 +879,12 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
   const count = rows * TABLE_POINTS;
   let upper = true;
   for (let k = 0; k < count; k++) if (!((PATCH[k] as number) > 0.5)) upper = false;
-  // across rows the complement of a share near 1 follows the rule's ripple too closely to interpolate
-  if (upper && rows > 1) return NaN;
+  // Across rows the complement of a share near 1 follows the rule's ripple too closely to interpolate; up to
+  // ROWS_UPPER_SHARE the share itself is, and its complement keeps its relative accuracy within a factor 10.
+  if (upper && rows > 1) {
+    for (let k = 0; k < count; k++) if (!((PATCH[k] as number) <= ROWS_UPPER_SHARE)) return NaN;
+    upper = false;
+  }
   for (let k = 0; k < count; k++) {
     const value = PATCH[k] as number;
     if (upper) {
