@@ -107,21 +107,25 @@ export function lossScaleWindows(
   };
 }
 
-// What one exponent's search knows of each tensor for one of the two curves: the cheap bounds (all tensors at
-// once), tighter upper bounds and values (each once asked for), and for flushing whether it is tolerated.
+// What the search knows of each tensor at one exponent for one of the two curves: the cheap bounds, a tighter upper
+// bound and the value (each once asked for), and for flushing whether it is tolerated. Each curve is monotone in k,
+// so what one exponent knows bounds the others: a value or bound at k' is a bound at k on the side the curve's
+// direction allows (see `known`).
 interface Table {
-  lows: Float64Array | null;
-  highs: Float64Array | null;
-  uppers: Float64Array | null;
-  values: Float64Array;
-  // per tensor: HAS_VALUE, HAS_UPPER, TOLERANCE_KNOWN, TOLERATED
+  k: number;
+  // per tensor i: the cheap bounds' low and high, the tighter upper bound and the value at 4i … 4i + 3
+  data: Float64Array;
+  // per tensor: HAS_VALUE, HAS_UPPER, TOLERANCE_KNOWN, TOLERATED, HAS_BOUNDS
   flags: Uint8Array;
 }
 const HAS_VALUE = 1;
 const HAS_UPPER = 2;
 const TOLERANCE_KNOWN = 4;
 const TOLERATED = 8;
-
+const HAS_BOUNDS = 16;
+// a value or bound taken from another exponent is widened by this much (relative), for the rounding of two
+// evaluations of a curve that is monotone in exact arithmetic
+const ACROSS = 1e-9;
 type Curve = "overflow" | "flush";
 
 class WindowSearch {
@@ -130,8 +134,16 @@ class WindowSearch {
   // flush edge): the searches decide sooner when the tensors that decide are integrated first
   private readonly overflowOrder: number[];
   private readonly flushOrder: number[];
+  // each tensor's place in overflowOrder (ties of the bounds are broken by it)
+  private readonly overflowRank: Int32Array;
   private readonly allBounded: boolean;
   private readonly tables = { overflow: new Map<number, Table>(), flush: new Map<number, Table>() };
+  // the tables of each curve by exponent, ascending
+  private readonly sorted: Record<Curve, Table[]> = { overflow: [], flush: [] };
+  // exponents where the union bound was found over the budget (for some set of tensors): cheap bounds taken there
+  // hold at every exponent below, which the rest of the search visits
+  private readonly overBudget: number[] = [];
+  private readonly pair = new Float64Array(2);
 
   constructor(
     private readonly tensors: readonly ScaledTensorCurves[],
@@ -140,6 +152,8 @@ class WindowSearch {
     this.n = tensors.length;
     this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
     this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
+    this.overflowRank = new Int32Array(this.n);
+    this.overflowOrder.forEach((i, r) => (this.overflowRank[i] = r));
     this.allBounded = tensors.every((t) => t.overflowRiskBounds !== undefined);
   }
 
@@ -188,35 +202,31 @@ class WindowSearch {
     let table = this.tables[curve].get(k);
     if (table === undefined) {
       const n = this.n;
-      table = { lows: null, highs: null, uppers: null, values: new Float64Array(n), flags: new Uint8Array(n) };
+      table = { k, data: new Float64Array(4 * n), flags: new Uint8Array(n) };
       this.tables[curve].set(k, table);
+      const sorted = this.sorted[curve];
+      let j = sorted.length;
+      while (j > 0 && sorted[j - 1]!.k > k) j--;
+      sorted.splice(j, 0, table);
     }
     return table;
   }
 
-  // The cheap bounds of every tensor at k (a tensor without them: [−∞, ∞]); known values are applied by the callers.
-  private bounds(curve: Curve, k: number): Table & { lows: Float64Array; highs: Float64Array } {
-    const table = this.table(curve, k);
-    if (table.lows === null || table.highs === null) {
-      const lows = new Float64Array(this.n).fill(-Infinity);
-      const highs = new Float64Array(this.n).fill(Infinity);
-      this.tensors.forEach((t, i) => {
-        const b = curve === "overflow" ? t.overflowRiskBounds?.(k) : t.flushedEnergyBounds?.(k);
-        if (b === undefined) return;
-        lows[i] = b[0];
-        highs[i] = b[1];
-      });
-      table.lows = lows;
-      table.highs = highs;
-    }
-    return table as Table & { lows: Float64Array; highs: Float64Array };
+  // The cheap bounds of tensor i at k (a tensor without them: [−∞, ∞]), each asked for once.
+  private cheapBounds(curve: Curve, i: number, table: Table): void {
+    if (((table.flags[i] as number) & HAS_BOUNDS) !== 0) return;
+    const t = this.tensors[i] as ScaledTensorCurves;
+    const b = curve === "overflow" ? t.overflowRiskBounds?.(table.k) : t.flushedEnergyBounds?.(table.k);
+    table.data[4 * i] = b === undefined ? -Infinity : b[0];
+    table.data[4 * i + 1] = b === undefined ? Infinity : b[1];
+    table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
   }
 
   private value(curve: Curve, k: number, i: number, table = this.table(curve, k)): number {
-    if (((table.flags[i] as number) & HAS_VALUE) !== 0) return table.values[i] as number;
+    if (((table.flags[i] as number) & HAS_VALUE) !== 0) return table.data[4 * i + 3] as number;
     const t = this.tensors[i] as ScaledTensorCurves;
     const v = curve === "overflow" ? t.overflowRisk(k) : t.flushedEnergy(k);
-    table.values[i] = v;
+    table.data[4 * i + 3] = v;
     table.flags[i] = (table.flags[i] as number) | HAS_VALUE;
     return v;
   }
@@ -224,22 +234,57 @@ class WindowSearch {
   // A tighter upper bound where the curve offers one (the value once known), else undefined.
   private upper(curve: Curve, k: number, i: number, table = this.table(curve, k)): number | undefined {
     const flags = table.flags[i] as number;
-    if ((flags & HAS_VALUE) !== 0) return table.values[i] as number;
-    if ((flags & HAS_UPPER) !== 0) return (table.uppers as Float64Array)[i] as number;
+    if ((flags & HAS_VALUE) !== 0) return table.data[4 * i + 3] as number;
+    if ((flags & HAS_UPPER) !== 0) return table.data[4 * i + 2] as number;
     const t = this.tensors[i] as ScaledTensorCurves;
     const u = curve === "overflow" ? t.overflowRiskUpper?.(k) : t.flushedEnergyUpper?.(k);
     if (u === undefined) return undefined;
-    table.uppers ??= new Float64Array(this.n);
-    table.uppers[i] = u;
+    table.data[4 * i + 2] = u;
     table.flags[i] = flags | HAS_UPPER;
     return u;
   }
 
-  // Whether the union bound at k is within the budget, deciding by the summed bounds where they can. When they do
-  // not, tensors are taken in priority order (those likeliest to overflow first): each one's upper bound is tightened
-  // where the curve offers a tighter one, and it is integrated if that bound could still break the budget alone;
-  // then the rest, largest upper bound first, until the exact part plus the remaining bounds decides: the same
-  // answer as summing every integral, for a fraction of the integrals.
+  // Bounds [pair[0], pair[1]] on tensor i's value at k from everything known of it at any exponent: the overflow risk
+  // grows with k (what is known below k bounds it from below, above k from above), the flushed share falls.
+  private known(curve: Curve, k: number, i: number): Float64Array {
+    let lo = -Infinity;
+    let hi = Infinity;
+    const rising = curve === "overflow";
+    for (const t of this.sorted[curve]) {
+      const flags = t.flags[i] as number;
+      if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) === 0) continue;
+      let a = -Infinity;
+      let b = Infinity;
+      if ((flags & HAS_VALUE) !== 0) a = b = t.data[4 * i + 3] as number;
+      else {
+        if ((flags & HAS_BOUNDS) !== 0) {
+          a = t.data[4 * i] as number;
+          b = t.data[4 * i + 1] as number;
+        }
+        if ((flags & HAS_UPPER) !== 0) b = Math.min(b, t.data[4 * i + 2] as number);
+      }
+      if (t.k === k) {
+        if (a > lo) lo = a;
+        if (b < hi) hi = b;
+      } else if (t.k < k === rising) {
+        const across = a * (1 - ACROSS);
+        if (across > lo) lo = across;
+      } else {
+        const across = b * (1 + ACROSS);
+        if (across < hi) hi = across;
+      }
+    }
+    this.pair[0] = lo;
+    this.pair[1] = hi;
+    return this.pair;
+  }
+
+  // Whether the union bound at k is within the budget, from bounds where they decide. Each tensor starts from what
+  // is known of it at any exponent; the first few in priority order (those likeliest to overflow) are integrated if
+  // their upper bound could break the budget alone; the tensors still unbounded get their cheap bounds (at the
+  // lowest exponent above k found over the budget, which serves the later steps of the search too); then the tensor
+  // with the largest upper bound is tightened, one step at a time (a tighter upper bound, then the integral), until
+  // the exact part plus the remaining bounds decides: the same answer as summing every integral.
   private riskWithin(k: number, active: Uint8Array): boolean {
     const budget = this.o.riskBudget;
     const n = this.n;
@@ -249,24 +294,37 @@ class WindowSearch {
       for (let i = 0; i < n; i++) if (active[i] === 1) sum += this.value("overflow", k, i);
       return Math.min(1, sum) <= budget;
     }
-    const table = this.bounds("overflow", k);
+    const answer = this.riskWithinByBounds(k, active);
+    if (!answer) this.overBudget.push(k);
+    return answer;
+  }
+
+  private riskWithinByBounds(k: number, active: Uint8Array): boolean {
+    const budget = this.o.riskBudget;
+    const n = this.n;
+    const table = this.table("overflow", k);
     const lows = new Float64Array(n);
     const highs = new Float64Array(n);
-    // 0: the cheap bounds, 1: the upper bound tightened, 2: exact, 3: set aside
+    // 0: bounds from what is known, 1: the upper bound at k taken, 2: exact, 3: set aside
     const state = new Uint8Array(n);
     let low = 0;
     let high = 0;
+    let unbounded = 0;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) {
         state[i] = 3;
         continue;
       }
-      const known = ((table.flags[i] as number) & HAS_VALUE) !== 0;
-      const a = known ? (table.values[i] as number) : (table.lows[i] as number);
-      const b = known ? (table.values[i] as number) : (table.highs[i] as number);
+      const flags = table.flags[i] as number;
+      const known = this.known("overflow", k, i);
+      // a probability is at least 0
+      const a = Math.max(0, known[0] as number);
+      const b = known[1] as number;
       lows[i] = a;
       highs[i] = b;
-      if (a === b) state[i] = 2;
+      if ((flags & HAS_VALUE) !== 0) state[i] = 2;
+      else if ((flags & HAS_UPPER) !== 0) state[i] = 1;
+      if (b === Infinity) unbounded++;
       low += a;
       high += b;
       // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
@@ -287,40 +345,78 @@ class WindowSearch {
       if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
       return undefined;
     };
-    const integrate = (i: number): boolean | undefined => {
+    const setBounds = (i: number, a: number, b: number): void => {
+      if (a > (lows[i] as number)) {
+        low += a - (lows[i] as number);
+        lows[i] = a;
+      }
+      if (b < (highs[i] as number)) {
+        // an infinite sum is summed afresh
+        if (highs[i] === Infinity) {
+          highs[i] = b;
+          high = 0;
+          for (let j = 0; j < n; j++) if (state[j] !== 3) high += highs[j] as number;
+        } else {
+          high += b - (highs[i] as number);
+          highs[i] = b;
+        }
+      }
+    };
+    const integrate = (i: number): void => {
       const exact = this.value("overflow", k, i, table);
       low += exact - (lows[i] as number);
-      high += exact - (highs[i] as number);
       lows[i] = exact;
-      highs[i] = exact;
+      if (highs[i] === Infinity) setBounds(i, exact, exact);
+      else {
+        high += exact - (highs[i] as number);
+        highs[i] = exact;
+      }
       state[i] = 2;
-      return decided();
+    };
+    // the tighter upper bound at k; false when the curve has none
+    const tighten = (i: number): boolean => {
+      state[i] = 1;
+      const u = this.upper("overflow", k, i, table);
+      if (u === undefined) return false;
+      setBounds(i, 0, Math.max(lows[i] as number, u));
+      return true;
     };
     let answer = decided();
     if (answer !== undefined) return answer;
-    // a tensor whose tightened bound could not break the budget alone is left for the second pass
-    for (const i of this.overflowOrder) {
-      if ((state[i] as number) >= 2) continue;
-      if (state[i] === 0) {
-        state[i] = 1;
-        const tighter = this.upper("overflow", k, i, table);
-        if (tighter !== undefined) {
-          const upper = Math.max(lows[i] as number, tighter);
-          if (upper < (highs[i] as number)) {
-            high += upper - (highs[i] as number);
-            highs[i] = upper;
-            answer = decided();
-            if (answer !== undefined) return answer;
-          }
-          if (upper <= budget) continue;
+    if (unbounded > 0) {
+      // the tensors still unbounded: their cheap bounds at the lowest exponent above k known over the budget
+      let ceiling = k;
+      for (const m of this.overBudget) if (m > k && (ceiling === k || m < ceiling)) ceiling = m;
+      const at = this.table("overflow", ceiling);
+      for (let i = 0; i < n; i++) {
+        if (state[i] === 3 || highs[i] !== Infinity) continue;
+        this.cheapBounds("overflow", i, at);
+        const a = ceiling === k ? Math.max(0, at.data[4 * i] as number) : 0;
+        const b = ceiling === k ? (at.data[4 * i + 1] as number) : (at.data[4 * i + 1] as number) * (1 + ACROSS);
+        if (a > (lows[i] as number)) {
+          low += a - (lows[i] as number);
+          lows[i] = a;
         }
+        highs[i] = b;
       }
-      answer = integrate(i);
+      high = 0;
+      for (let i = 0; i < n; i++) if (state[i] !== 3) high += highs[i] as number;
+      answer = decided();
       if (answer !== undefined) return answer;
     }
-    const rest = this.overflowOrder.filter((i) => state[i] === 1).sort((a, b) => (highs[b] as number) - (highs[a] as number) || a - b);
-    for (const i of rest) {
-      answer = integrate(i);
+    // tighten the largest upper bound first (ties: priority order)
+    const heap: number[] = [];
+    const aboveIn = (a: number, b: number): boolean => {
+      const ha = highs[a] as number;
+      const hb = highs[b] as number;
+      return ha > hb || (ha === hb && (this.overflowRank[a] as number) < (this.overflowRank[b] as number));
+    };
+    for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heapPush(heap, i, aboveIn);
+    while (heap.length > 0) {
+      const i = heapPop(heap, aboveIn);
+      if (state[i] === 0 && tighten(i)) heapPush(heap, i, aboveIn);
+      else integrate(i);
+      answer = decided();
       if (answer !== undefined) return answer;
     }
     let sum = 0;
@@ -330,33 +426,54 @@ class WindowSearch {
 
   // The active tensor with the largest value at k (the first such in the tensors' order; the first tensor when no
   // value is above 0). A tensor whose upper bound is below a value already found, or below another's lower bound,
-  // cannot be the largest: only the others are integrated, in priority order so that a large value is found early.
+  // cannot be the largest, nor can one whose bound only reaches a value found on a tensor before it: only the others
+  // are integrated, in priority order so that a large value is found early.
   private worst(curve: Curve, k: number, active: Uint8Array): { id: string | null; value: number } {
-    const table = this.bounds(curve, k);
+    const table = this.table(curve, k);
     const n = this.n;
     const highs = new Float64Array(n);
     let floor = -Infinity;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) continue;
-      const known = ((table.flags[i] as number) & HAS_VALUE) !== 0;
-      highs[i] = known ? (table.values[i] as number) : (table.highs[i] as number);
-      const low = known ? (table.values[i] as number) : (table.lows[i] as number);
-      if (low > floor) floor = low;
+      let known = this.known(curve, k, i);
+      if (known[1] === Infinity) {
+        this.cheapBounds(curve, i, table);
+        known = this.known(curve, k, i);
+      }
+      highs[i] = known[1] as number;
+      if ((known[0] as number) > floor) floor = known[0] as number;
     }
     const visited = new Uint8Array(n);
+    // the lowest index of a tensor visited whose value is the floor, or −1 when the floor is only a bound
+    let holder = -1;
+    const beaten = (i: number): boolean =>
+      (highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor);
     for (const i of curve === "overflow" ? this.overflowOrder : this.flushOrder) {
-      if (active[i] === 0 || (highs[i] as number) < floor) continue;
+      if (active[i] === 0 || beaten(i)) continue;
+      if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0) {
+        // bounded from another exponent only: the cheap bounds here first
+        this.cheapBounds(curve, i, table);
+        if ((table.data[4 * i + 1] as number) < (highs[i] as number)) highs[i] = table.data[4 * i + 1] as number;
+        if ((table.data[4 * i] as number) > floor) {
+          floor = table.data[4 * i] as number;
+          holder = -1;
+        }
+        if (beaten(i)) continue;
+      }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
       if (u !== undefined && u < floor) continue;
       const v = this.value(curve, k, i, table);
       visited[i] = 1;
-      if (v > floor) floor = v;
+      if (v > floor) {
+        floor = v;
+        holder = i;
+      } else if (v === floor && (holder < 0 || i < holder)) holder = i;
     }
     let id: string | null = null;
     let best = -Infinity;
     for (let i = 0; i < n; i++) {
       if (visited[i] === 0) continue;
-      const v = table.values[i] as number;
+      const v = table.data[4 * i + 3] as number;
       if (v > best || id === null) {
         best = Math.max(best, v);
         id = (this.tensors[i] as ScaledTensorCurves).id;
@@ -365,18 +482,32 @@ class WindowSearch {
     return { id, value: best };
   }
 
-  // Whether one tensor's flushed share at k is within the tolerance, deciding by its bounds where they can.
+  // Whether one tensor's flushed share at k is within the tolerance, deciding by what is known of it (at k or, the
+  // share falling with k, at other exponents) where it can.
   private tolerated(k: number, i: number): boolean {
     const table = this.table("flush", k);
     const flags = table.flags[i] as number;
     if ((flags & TOLERANCE_KNOWN) !== 0) return (flags & TOLERATED) !== 0;
     const tolerance = this.o.flushTolerance;
-    const t = this.tensors[i] as ScaledTensorCurves;
     let ok: boolean | undefined;
-    const bounds = (flags & HAS_VALUE) !== 0 ? undefined : t.flushedEnergyBounds?.(k);
-    if (bounds !== undefined && bounds[1] <= tolerance) ok = true;
-    else if (bounds !== undefined && bounds[0] > tolerance) ok = false;
-    else {
+    // tolerated below k: tolerated at k; not tolerated above k: not at k
+    for (const t of this.sorted.flush) {
+      const f = t.flags[i] as number;
+      if ((f & TOLERANCE_KNOWN) === 0) continue;
+      if (t.k < k && (f & TOLERATED) !== 0) ok = true;
+      else if (t.k > k && (f & TOLERATED) === 0) ok = false;
+    }
+    if (ok === undefined) {
+      const known = this.known("flush", k, i);
+      if ((known[1] as number) <= tolerance) ok = true;
+      else if ((known[0] as number) > tolerance) ok = false;
+    }
+    if (ok === undefined && (flags & (HAS_VALUE | HAS_BOUNDS)) === 0) {
+      this.cheapBounds("flush", i, table);
+      if ((table.data[4 * i + 1] as number) <= tolerance) ok = true;
+      else if ((table.data[4 * i] as number) > tolerance) ok = false;
+    }
+    if (ok === undefined) {
       const upper = this.upper("flush", k, i, table);
       ok = upper !== undefined && upper <= tolerance ? true : this.value("flush", k, i, table) <= tolerance;
     }
@@ -401,6 +532,40 @@ class WindowSearch {
     }
     return edge;
   }
+}
+
+// A binary heap of indices on an array, `above(a, b)` true when a belongs nearer the top; keys may change only
+// while an index is out of the heap.
+function heapPush(heap: number[], i: number, above: (a: number, b: number) => boolean): void {
+  let j = heap.length;
+  heap.push(i);
+  while (j > 0) {
+    const parent = (j - 1) >> 1;
+    if (!above(i, heap[parent] as number)) break;
+    heap[j] = heap[parent] as number;
+    j = parent;
+  }
+  heap[j] = i;
+}
+
+function heapPop(heap: number[], above: (a: number, b: number) => boolean): number {
+  const top = heap[0] as number;
+  const last = heap.pop() as number;
+  const n = heap.length;
+  if (n > 0) {
+    let j = 0;
+    for (;;) {
+      const l = 2 * j + 1;
+      if (l >= n) break;
+      const r = l + 1;
+      const c = r < n && above(heap[r] as number, heap[l] as number) ? r : l;
+      if (!above(heap[c] as number, last)) break;
+      heap[j] = heap[c] as number;
+      j = c;
+    }
+    heap[j] = last;
+  }
+  return top;
 }
 
 // Tensor indices by a key, smallest first (stable): the order in which the searches integrate.
