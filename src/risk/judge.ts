@@ -478,15 +478,24 @@ function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number
 }
 
 function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest"): { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined {
-  let best: { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined;
-  for (const tensor of tensors) {
-    for (const profile of [tensor.start, tensor.end]) {
-      if (!(profile.rms > 0)) continue;
-      const better = best === undefined || (pick === "largest" ? profile.rms > best.profile.rms : profile.rms < best.profile.rms);
-      if (better) best = { tensor, profile };
+  let bestTensor: TensorPrediction | undefined;
+  let bestProfile: MagnitudeProfile | undefined;
+  let bestRms = 0;
+  for (let i = 0; i < tensors.length; i++) {
+    const tensor = tensors[i] as TensorPrediction;
+    // the start profile, then the end one
+    for (let k = 0; k < 2; k++) {
+      const profile = k === 0 ? tensor.start : tensor.end;
+      const rms = profile.rms;
+      if (!(rms > 0)) continue;
+      if (bestProfile === undefined || (pick === "largest" ? rms > bestRms : rms < bestRms)) {
+        bestTensor = tensor;
+        bestProfile = profile;
+        bestRms = rms;
+      }
     }
   }
-  return best;
+  return bestTensor === undefined || bestProfile === undefined ? undefined : { tensor: bestTensor, profile: bestProfile };
 }
 
 /**
@@ -494,8 +503,15 @@ function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest
  * across workers and accumulation steps, and Adam's epsilon. Added when the prediction has none of the kind.
  */
 export function trainingSites(spec: NetworkSpec, prediction: Prediction): HazardSite[] {
-  const has = (kind: HazardSite["kind"]) => prediction.hazards.some((site) => site.kind === kind);
-  const weightGradients = prediction.tensors.filter((tensor) => tensor.role === "weight-gradient");
+  const has = (kind: HazardSite["kind"]): boolean => {
+    for (let i = 0; i < prediction.hazards.length; i++) if ((prediction.hazards[i] as HazardSite).kind === kind) return true;
+    return false;
+  };
+  const weightGradients: TensorPrediction[] = [];
+  for (let i = 0; i < prediction.tensors.length; i++) {
+    const tensor = prediction.tensors[i] as TensorPrediction;
+    if (tensor.role === "weight-gradient") weightGradients.push(tensor);
+  }
   const training = spec.training;
   const sites: HazardSite[] = [];
 

@@ -177,7 +177,7 @@ function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): nu
   return value;
 }
 
-// The levels of profileStatistics in binades from the rms depend on the element law, the element count, the
+// The levels of profileStatistics in binades from the rms (kept as the factors 2^level) depend on the element law, the element count, the
 // spread and the quantile levels only; many tensors (and every plan of a comparison) share them. An open-addressing
 // table on those six numbers (no string key per call), cleared when half full, so a long-running batch worker does
 // not grow without end.
@@ -188,7 +188,24 @@ const LEVELS_LIMIT = LEVEL_SLOTS >> 1;
 let levelCount = 0;
 const KEY = new Float64Array(6);
 const KEY_WORDS = new Int32Array(KEY.buffer);
-const SHAPE_CODES: Record<string, number> = { gaussian: 0, "half-gaussian": 1, uniform: 2, constant: 3, bounded: 0, "log-normal": 4 };
+// the element laws of the levels, as numbers (a bound is applied after the table: bounded is the Gaussian's)
+function levelShapeCode(shape: MagnitudeProfile["shape"]): number {
+  switch (shape) {
+    case "gaussian":
+    case "bounded":
+      return 0;
+    case "half-gaussian":
+      return 1;
+    case "uniform":
+      return 2;
+    case "constant":
+      return 3;
+    case "log-normal":
+      return 4;
+    default:
+      return -1;
+  }
+}
 // the slot holding KEY, or the empty slot where it goes
 function levelSlot(): number {
   let hash = 0x811c9dc5;
@@ -232,7 +249,7 @@ export function profileStatistics(
   // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
   // breaks the scale family, so solve without it and cap the levels at the bound afterwards
   const bound = profile.bound;
-  const lawShape = SHAPE_CODES[profile.shape] ?? -1;
+  const lawShape = levelShapeCode(profile.shape);
   KEY[0] = lawShape;
   KEY[1] = lawShape === 4 ? (profile.elementLog2Spread ?? 0) : 0;
   KEY[2] = n;
@@ -249,12 +266,13 @@ export function profileStatistics(
       slot = levelSlot();
     }
     LEVEL_KEYS.set(KEY, slot * 6);
-    LEVEL_VALUES[slot * 2] = max;
-    LEVEL_VALUES[slot * 2 + 1] = low;
+    // the factors 2^level themselves: a hit then costs two products, not two powers
+    LEVEL_VALUES[slot * 2] = 2 ** max;
+    LEVEL_VALUES[slot * 2 + 1] = 2 ** low;
     levelCount++;
   }
-  let max = profile.rms * 2 ** (LEVEL_VALUES[slot * 2] as number);
-  let low = profile.rms * 2 ** (LEVEL_VALUES[slot * 2 + 1] as number);
+  let max = profile.rms * (LEVEL_VALUES[slot * 2] as number);
+  let low = profile.rms * (LEVEL_VALUES[slot * 2 + 1] as number);
   if (bound !== undefined && bound > 0) {
     max = Math.min(max, bound);
     low = Math.min(low, bound);

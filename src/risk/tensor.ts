@@ -158,48 +158,57 @@ export function tensorFormatRisk(
 export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
   const { statistics } = scaled;
   const start = evaluate(tensor.start, scaled.start, statistics.start, limits, options);
+  const startScaleLog2 = evaluatedScaleLog2;
   const end = scaled.same ? start : evaluate(tensor.end, scaled.end, statistics.end, limits, options);
-  const worst = worseOf(start.risk, end.risk);
-  const findings = options.judged ? tensorFindings(tensor, limits, worst, options) : [];
+  const endScaleLog2 = evaluatedScaleLog2;
+  const worst = worseOf(start, end);
+  const findings = tensorFindings(tensor, limits, worst, options);
   return {
     format: limits.format,
     judged: options.judged,
-    scaleLog2: { start: start.scaleLog2, end: end.scaleLog2 },
-    start: start.risk,
-    end: end.risk,
+    scaleLog2: { start: startScaleLog2, end: endScaleLog2 },
+    start,
+    end,
     worst,
     verdict: worstVerdict(findings),
     findings,
   };
 }
 
-// One profile (`scaled`: the predicted `profile` times the loss-scale factor) against one format.
+// the per-tensor scale exponent of the last `evaluate` (a second return value, without an object per call)
+let evaluatedScaleLog2 = 0;
+
+// One profile (`scaled`: the predicted `profile` times the loss-scale factor) against one format; its scale
+// exponent is left in evaluatedScaleLog2.
 function evaluate(
   profile: MagnitudeProfile,
   scaled: MagnitudeProfile,
   stats: ProfileStatistics,
   limits: RangeLimits,
   options: TensorRiskOptions,
-): { risk: ProfileRisk; scaleLog2: number } {
-  if (!options.perTensorScaling) return { risk: profileRisk(scaled, limits, stats), scaleLog2: 0 };
+): ProfileRisk {
+  if (!options.perTensorScaling) {
+    evaluatedScaleLog2 = 0;
+    return profileRisk(scaled, limits, stats);
+  }
   const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
   const factor = 2 ** scaleLog2;
   // scaling is linear, so the statistics scale with it
-  const rescaled = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
+  const rescaled: ProfileStatistics = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
   const risk = profileRisk(riskProfile(scaled, factor), limits, rescaled);
+  evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
-  if (!block) return { risk, scaleLog2 };
+  if (!block) return risk;
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
   // a clipped block maximum is an overflow only when the conversion does not saturate (OCP MX leaves it to the implementation)
   const nonzero = Math.max(1, profile.elements * (1 - profile.zeroFraction));
   return {
-    risk: {
-      ...risk,
-      flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
-      flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
-      overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
-    },
-    scaleLog2,
+    flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
+    subnormalFraction: risk.subnormalFraction,
+    flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
+    overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
+    headroom: risk.headroom,
+    footroom: risk.footroom,
   };
 }
 
@@ -234,9 +243,10 @@ export function worseOf(start: ProfileRisk, end: ProfileRisk): WorstRisk {
 /** The worst severity among findings ("fits" when there are none). */
 export function worstVerdict(findings: readonly { severity: Verdict }[]): Verdict {
   let verdict: Verdict = "fits";
-  for (const finding of findings) {
-    if (finding.severity === "fails") return "fails";
-    if (finding.severity === "at-risk") verdict = "at-risk";
+  for (let i = 0; i < findings.length; i++) {
+    const severity = (findings[i] as { severity: Verdict }).severity;
+    if (severity === "fails") return "fails";
+    if (severity === "at-risk") verdict = "at-risk";
   }
   return verdict;
 }
@@ -253,8 +263,10 @@ function tensorFindings(
   worst: WorstRisk,
   options: TensorRiskOptions,
 ): Finding[] {
-  const t = options.thresholds;
+  // one allocation site for every tensor's findings, judged or not: the arrays share one elements kind
   const findings: Finding[] = [];
+  if (!options.judged) return findings;
+  const t = options.thresholds;
   const format = limits.format;
   const subject = tensor.id;
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence)
