@@ -9,7 +9,7 @@
  */
 import type { LayerSpec, NetworkSpec } from "../spec/types.js";
 import { describeShape, featureWidth, initDistribution, initVariance, sampleElements } from "./shape.js";
-import type { ConcreteLayerSpec, Graph, GraphIssue, GraphLayer, GraphResult, GraphWeight, SampleShape } from "./types.js";
+import type { ConcreteLayerSpec, Graph, GraphFamily, GraphIssue, GraphLayer, GraphResult, GraphWeight, SampleShape, WeightDistribution } from "./types.js";
 
 /** Tensors larger than this (elements in one step) are questioned as a likely typo. */
 export const ABSURD_ELEMENTS = 1e12;
@@ -244,7 +244,7 @@ function place(
     case "rms-norm":
     case "batch-norm": {
       const n = width;
-      weights.push({ name: "gain", shape: [n], elements: n, fanIn: 1, fanOut: 1, variance: spec.gain * spec.gain, value: spec.gain, distribution: "constant" });
+      weights.push(gain(n, spec.gain));
       if (spec.family !== "rms-norm") weights.push(zeroBias(n));
       output = input;
       break;
@@ -319,23 +319,25 @@ function place(
     if (weight.elements > ABSURD_ELEMENTS) fail(`its ${weight.name} holds ${weight.elements.toExponential(2)} elements; is a size wrong?`);
   }
 
+  // every layer gets every key, in one order, and the family as the literal of FAMILIES: the magnitude engine and the
+  // operation rules then meet one hidden class and compare families by identity (a family read from YAML is a
+  // string of its own, and its first compare against a literal throws optimised code away)
+  const main = weights[0];
+  const sized = main !== undefined && main.distribution !== "constant";
   const placed: GraphLayer = {
     index: walk.next++,
     name,
-    family: spec.family,
+    family: FAMILIES[spec.family],
     spec,
     path: spec.path,
     input,
     output,
+    fanIn: sized ? main.fanIn : undefined,
+    fanOut: sized ? main.fanOut : undefined,
     weights,
+    branch,
     depth,
   };
-  const main = weights[0];
-  if (main !== undefined && main.distribution !== "constant") {
-    placed.fanIn = main.fanIn;
-    placed.fanOut = main.fanOut;
-  }
-  if (branch !== undefined) placed.branch = branch;
   out.push(placed);
   return output;
 }
@@ -382,6 +384,28 @@ export function convSize(n: number, kernel: number, stride: number, padding: "sa
   return Math.floor((n + 2 * pad - kernel) / stride) + 1;
 }
 
+/** Each family as a literal (see place). */
+const FAMILIES: Record<GraphFamily, GraphFamily> = {
+  dense: "dense",
+  conv2d: "conv2d",
+  embedding: "embedding",
+  activation: "activation",
+  dropout: "dropout",
+  "layer-norm": "layer-norm",
+  "rms-norm": "rms-norm",
+  "batch-norm": "batch-norm",
+  "average-pool": "average-pool",
+  "max-pool": "max-pool",
+  flatten: "flatten",
+  residual: "residual",
+  attention: "attention",
+  "gated-feed-forward": "gated-feed-forward",
+};
+
+/** Each distribution as a literal, for the same reason. */
+const DISTRIBUTIONS: Record<WeightDistribution, WeightDistribution> = { normal: "normal", uniform: "uniform", constant: "constant", zeros: "zeros" };
+
+// weights too get every key in one order (one hidden class)
 function matrix(name: string, shape: number[], fanIn: number, fanOut: number, init: GraphWeight["init"] & object): GraphWeight {
   return {
     name,
@@ -390,14 +414,19 @@ function matrix(name: string, shape: number[], fanIn: number, fanOut: number, in
     fanIn,
     fanOut,
     variance: initVariance(init, fanIn, fanOut),
-    distribution: initDistribution(init),
+    value: undefined,
+    distribution: DISTRIBUTIONS[initDistribution(init)],
     init,
   };
 }
 
+function gain(n: number, value: number): GraphWeight {
+  return { name: "gain", shape: [n], elements: n, fanIn: 1, fanOut: 1, variance: value * value, value, distribution: "constant", init: undefined };
+}
+
 function zeroBias(n: number): GraphWeight {
   // biases start at zero (common practice)
-  return { name: "bias", shape: [n], elements: n, fanIn: 1, fanOut: 1, variance: 0, distribution: "zeros" };
+  return { name: "bias", shape: [n], elements: n, fanIn: 1, fanOut: 1, variance: 0, value: undefined, distribution: "zeros", init: undefined };
 }
 
 
