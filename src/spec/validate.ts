@@ -79,9 +79,12 @@ const string = (value: unknown): string => (typeof value === "string" ? value : 
 const nonEmpty = (value: unknown): string => (string(value).length >= 1 ? (value as string) : refuse());
 const name = (value: unknown): string => (NAME_PATTERN.test(string(value)) ? (value as string) : refuse());
 
+// An accepted name is returned as the list's own literal, not the string read from the document: a literal is an
+// interned string, so every later compare against a literal is one pointer compare, and optimised code that met
+// only interned strings is not thrown away when a document's copy arrives (V8 deoptimises on "wrong instance type").
 function oneOf<T extends string>(values: readonly T[]): (value: unknown) => T {
-  const set = new Set<string>(values);
-  return (value) => (typeof value === "string" && set.has(value) ? (value as T) : refuse());
+  const canonical = new Map<string, T>(values.map((v) => [v, v]));
+  return (value) => (typeof value === "string" ? canonical.get(value) : undefined) ?? refuse();
 }
 
 const format = oneOf(FORMAT_NAMES);
@@ -266,12 +269,16 @@ function pool(): (typeof LAYERS)[string] {
   };
 }
 
+// the layer types as literals (see oneOf)
+const BARE_NAMES = new Map<string, string>([...BARE].map((v) => [v, v]));
+const LAYER_NAMES = new Map<string, string>(Object.keys(LAYERS).map((v) => [v, v]));
+
 function layer(value: unknown): unknown {
-  if (typeof value === "string") return BARE.has(value) ? value : refuse();
+  if (typeof value === "string") return BARE_NAMES.get(value) ?? refuse();
   const type = (value as Data | null)?.["type"];
   const kind = typeof type === "string" && Object.hasOwn(LAYERS, type) ? LAYERS[type]! : refuse();
   const raw = mapping(value, kind.keys);
-  const out: Data = { type };
+  const out: Data = { type: LAYER_NAMES.get(type as string) };
   optional(out, raw, "name", name);
   kind.fields(out, raw);
   return out;
