@@ -955,12 +955,49 @@ function latticeCover(from: number, to: number): void {
   latticeBase -= shift;
   lattice = grown;
 }
+// For an element law g is monotone and reaches its limits exactly (an erfc that underflows to 0, an anyOf that
+// rounds to 1, a share capped at 1), and the lattice points are far enough apart that rounding cannot undo that
+// order: past the first point that holds a limit, every point holds it. The points a sum needs are evaluated outward
+// from its centre, each side until it reaches its limit (the values are the ones an evaluation would give, so the sums
+// are unchanged), which leaves most of a wide window unevaluated. NaN limits: no such shortcut (closures).
+let latticeHighLimit = NaN;
+let latticeLowLimit = NaN;
+function latticeFill(from: number, to: number, centre: number): void {
+  const values = lattice;
+  let reached = false;
+  for (let m = centre; m <= to; m++) {
+    const at = m - latticeBase;
+    let value = values[at] as number;
+    if (value !== value) {
+      value = reached ? latticeHighLimit : latticeValue(m * latticeStep);
+      values[at] = value;
+    }
+    if (value === latticeHighLimit) reached = true;
+  }
+  reached = false;
+  for (let m = centre - 1; m >= from; m--) {
+    const at = m - latticeBase;
+    let value = values[at] as number;
+    if (value !== value) {
+      value = reached ? latticeLowLimit : latticeValue(m * latticeStep);
+      values[at] = value;
+    }
+    if (value === latticeLowLimit) reached = true;
+  }
+}
+// the mixtures already summed in the current search (its bracket ends are summed twice)
+const MIXTURE_MEMO = 64;
+const MIXTURE_AT = new Float64Array(MIXTURE_MEMO);
+const MIXTURE_VALUE = new Float64Array(MIXTURE_MEMO);
+let mixtureCount = 0;
 // Σ_i w_i·g(lattice point j + half − i): node i sits at z = (i − half)·DRAW_STEP, so v_j − spread·z_i is that point
 function latticeMixture(j: number): number {
+  for (let k = 0; k < mixtureCount; k++) if (MIXTURE_AT[k] === j) return MIXTURE_VALUE[k] as number;
   const w = DRAW_NODES.w;
   const count = w.length;
   const half = (count - 1) / 2;
   latticeCover(j + half - (count - 1), j + half);
+  if (latticeHighLimit === latticeHighLimit) latticeFill(j + half - (count - 1), j + half, j);
   const values = lattice;
   const offset = j + half - latticeBase;
   let sum = 0;
@@ -971,6 +1008,10 @@ function latticeMixture(j: number): number {
       values[offset - i] = value;
     }
     sum += (w[i] as number) * value;
+  }
+  if (mixtureCount < MIXTURE_MEMO) {
+    MIXTURE_AT[mixtureCount] = j;
+    MIXTURE_VALUE[mixtureCount++] = sum;
   }
   return sum;
 }
@@ -986,6 +1027,8 @@ function latticeMixture(j: number): number {
 export function mixtureCrossing(g: (v: number) => number, spread: number, p: number, decreasing: boolean): number {
   if (!(spread > 0)) return crossing(g, p, decreasing, 1e-9);
   latticeClosure = g;
+  latticeHighLimit = NaN;
+  latticeLowLimit = NaN;
   const start = crossing(g, p, decreasing, (spread * DRAW_STEP) / 4);
   const level = latticeCrossing(spread, p, decreasing, start);
   latticeClosure = null;
@@ -1005,8 +1048,44 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   latticeClosure = null;
   const spread = profile.log2Spread;
   if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
+  // the share below a level does not depend on the element count: tensors of one spread and law share it
+  const slot = decreasing ? -1 : belowSlot(spread, p);
+  const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
+  if (slot >= 0) {
+    const at = slot * 4;
+    if (BELOW_KEYS[at] === integrandLaw && BELOW_KEYS[at + 1] === elementSpread && BELOW_KEYS[at + 2] === spread && BELOW_KEYS[at + 3] === p) {
+      return BELOW_LEVELS[slot] as number;
+    }
+  }
   const start = crossing(latticeValue, p, decreasing, (spread * DRAW_STEP) / 4);
-  return latticeCrossing(spread, p, decreasing, start);
+  // exceedance probabilities fall from 1 to 0, shares below a level rise from 0 to 1
+  latticeHighLimit = decreasing ? 0 : 1;
+  latticeLowLimit = decreasing ? 1 : 0;
+  const level = latticeCrossing(spread, p, decreasing, start);
+  latticeHighLimit = NaN;
+  latticeLowLimit = NaN;
+  if (slot >= 0) {
+    const at = slot * 4;
+    BELOW_KEYS[at] = integrandLaw;
+    BELOW_KEYS[at + 1] = elementSpread;
+    BELOW_KEYS[at + 2] = spread;
+    BELOW_KEYS[at + 3] = p;
+    BELOW_LEVELS[slot] = level;
+  }
+  return level;
+}
+
+// The levels of lawMixtureCrossing's "below" per (law, element spread, spread, p), direct-mapped on the spread's
+// and p's bits (a collision replaces the older level); the element spread is the log-normal law's (0 for the others).
+const BELOW_SLOTS = 2048;
+const BELOW_KEYS = new Float64Array(4 * BELOW_SLOTS).fill(NaN);
+const BELOW_LEVELS = new Float64Array(BELOW_SLOTS);
+function belowSlot(spread: number, p: number): number {
+  BITS[0] = spread;
+  let hash = Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b);
+  BITS[0] = p;
+  hash = Math.imul(hash ^ (BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x27d4eb2f), 0x165667b1);
+  return (hash >>> 21) & (BELOW_SLOTS - 1);
 }
 
 // The lattice search of mixtureCrossing from a starting level. The computed mixture is monotone in j (rounding is
@@ -1015,6 +1094,7 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
   const step = spread * DRAW_STEP;
   latticeStep = step;
   lattice.fill(NaN);
+  mixtureCount = 0;
   const start = Math.round(direct / step);
   latticeBase = start - (lattice.length >> 1);
   const beyond = (j: number): boolean => (decreasing ? latticeMixture(j) <= p : latticeMixture(j) >= p);
