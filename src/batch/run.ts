@@ -3,6 +3,7 @@
  */
 import type { BatchInput } from "./paths.js";
 import { runPool } from "./pool.js";
+import { tuneTieringForBatch } from "./tiering.js";
 import type { SpecTask, TaskResult } from "./evaluate.js";
 import type { BatchRow } from "./types.js";
 import type { Variant } from "./vary.js";
@@ -63,6 +64,8 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
   });
   let done = plan.length - tasks.length;
   if (done > 0) options.onRow?.(done, plan.length);
+  // before the workers start: their isolates take V8's flags as they stand
+  if (tasks.length > 0) tuneTieringForBatch();
   const outcomes = await runPool<SpecTask, TaskResult>(options.workerUrl ?? DEFAULT_WORKER_URL, tasks, {
     ...(options.workers !== undefined ? { workers: options.workers } : {}),
     workerData: options.workerData,
