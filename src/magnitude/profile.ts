@@ -143,22 +143,21 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
   const given = m.positionCorrelation;
   const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
-  if (bound === undefined && shape !== "log-normal") {
-    // the common profiles, each made whole by one literal (same keys in the same order as below): adding keys one by
-    // one would give every combination its own chain of hidden classes and slow every store and later read
-    if (sampleCorrelation === undefined) {
-      return positionCorrelation === undefined
-        ? { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement }
-        : { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, positionCorrelation };
-    }
-    return positionCorrelation === undefined
-      ? { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, sampleCorrelation }
-      : { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement, sampleCorrelation, positionCorrelation };
-  }
-  const profile: MagnitudeProfile = { elements, zeroFraction, shape, rms, log2Spread, meanSquare: q, maxElement };
-  if (bound !== undefined) profile.bound = bound;
-  if (shape === "log-normal") profile.elementLog2Spread = elementLog2Spread ?? 0;
-  if (sampleCorrelation !== undefined) profile.sampleCorrelation = sampleCorrelation;
-  if (positionCorrelation !== undefined) profile.positionCorrelation = positionCorrelation;
-  return profile;
+  // one literal with every key, absent ones undefined, in the order the JSON output has always had them: every
+  // profile then has one hidden class (keys added one by one would give each combination its own chain of classes),
+  // and JSON leaves the undefined keys out, so the output does not change
+  return {
+    elements,
+    zeroFraction,
+    shape,
+    rms,
+    log2Spread,
+    meanSquare: q,
+    maxElement,
+    bound,
+    elementLog2Spread: shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined,
+    sampleCorrelation,
+    positionCorrelation,
+    coherentRms: undefined,
+  };
 }
