@@ -993,6 +993,10 @@ let mixtureCount = 0;
 // Σ_i w_i·g(lattice point j + half − i): node i sits at z = (i − half)·DRAW_STEP, so v_j − spread·z_i is that point
 function latticeMixture(j: number): number {
   for (let k = 0; k < mixtureCount; k++) if (MIXTURE_AT[k] === j) return MIXTURE_VALUE[k] as number;
+  if (latticeTable) {
+    const value = gaussianTableValue(BELOW, latticeSpread, j * latticeStep);
+    if (!Number.isNaN(value)) return memoMixture(j, value);
+  }
   const w = DRAW_NODES.w;
   const count = w.length;
   const half = (count - 1) / 2;
@@ -1009,12 +1013,20 @@ function latticeMixture(j: number): number {
     }
     sum += (w[i] as number) * value;
   }
+  return memoMixture(j, sum);
+}
+function memoMixture(j: number, sum: number): number {
   if (mixtureCount < MIXTURE_MEMO) {
     MIXTURE_AT[mixtureCount] = j;
     MIXTURE_VALUE[mixtureCount++] = sum;
   }
   return sum;
 }
+// The Gaussian share below, where its rows cover the spread, is read off them (gaussianTableValue) instead of
+// summed on the search's own lattice: the same rule's sums at the same lattice points to about 1e-8, so the level
+// moves by about that over the slope (test/risk/laws.test.ts bounds it against the lattice's own sums).
+let latticeTable = false;
+let latticeSpread = 0;
 
 /**
  * The level v (in binades above the median scale) where the draw mixture of a scale-family probability crosses
@@ -1038,9 +1050,11 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
 /**
  * {@link mixtureCrossing} of a profile's element law without its bound, at r = 1 and t = 2^v:
  * g(v) = anyOf(above(1, 2^v), n) (`measure` "any-above", decreasing) or below(1, 2^v) ("below", increasing), the
- * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian").
+ * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian"). The Gaussian
+ * "below" mixture is read off the shared rows of the draw rule's sums where they cover the spread; `viaRows` false
+ * sums it on the search's own lattice (the reference the rows are held to in the tests).
  */
-export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number): number {
+export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number, viaRows = true): number {
   const kind = measure === "any-above" ? ANY_ABOVE : BELOW;
   const decreasing = kind === ANY_ABOVE;
   // the bound's verdict is ignored: the levels are solved without it
@@ -1049,7 +1063,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   const spread = profile.log2Spread;
   if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
   // the share below a level does not depend on the element count: tensors of one spread and law share it
-  const slot = decreasing ? -1 : belowSlot(spread, p);
+  const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
   const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
   if (slot >= 0) {
     const at = slot * 4;
@@ -1061,7 +1075,10 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   // exceedance probabilities fall from 1 to 0, shares below a level rise from 0 to 1
   latticeHighLimit = decreasing ? 0 : 1;
   latticeLowLimit = decreasing ? 1 : 0;
+  latticeTable = viaRows && !decreasing && integrandLaw === GAUSSIAN && spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD;
+  latticeSpread = spread;
   const level = latticeCrossing(spread, p, decreasing, start);
+  latticeTable = false;
   latticeHighLimit = NaN;
   latticeLowLimit = NaN;
   if (slot >= 0) {
