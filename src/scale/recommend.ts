@@ -6,7 +6,7 @@ import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
-import { energyBelow, limitsFor, lossScaleCurves, probabilityAnyAbove, riskProfile, sameDistribution, type RangeLimits } from "../risk/index.js";
+import { energyBelow, limitsFor, lossScaleCurveParts, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
@@ -118,12 +118,9 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
  * that come near the budget or the tolerance. Values are not memoised here: the window's search keeps them.
  */
 export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
-  const byId = new Map(tensors.map((t) => [t.id, t] as const));
-  return lossScaleCurves(tensors, limits).map((c) => {
-    const tensor = byId.get(c.id)!;
-    const same = sameDistribution(tensor.start, tensor.end);
-    const start = riskProfile(tensor.start);
-    const end = same ? start : riskProfile(tensor.end);
+  // the window keeps values and bounds itself: the parts without memos
+  return lossScaleCurveParts(tensors, limits).map((c) => {
+    const { start, end, same } = c;
     // each profile's segment upper bound at the exponent last asked (the window asks for a tensor's bound and then
     // its value at one exponent; it keeps both itself, src/scale/window.ts)
     const lastUppers = (upper: (p: MagnitudeProfile, t: number) => number, level: number) => {

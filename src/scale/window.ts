@@ -414,7 +414,8 @@ class WindowSearch {
     for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heapPush(heap, i, aboveIn);
     while (heap.length > 0) {
       const i = heapPop(heap, aboveIn);
-      if (state[i] === 0 && tighten(i)) heapPush(heap, i, aboveIn);
+      // a tensor whose tighter bound could still break the budget alone is integrated at once: either answer needs it
+      if (state[i] === 0 && tighten(i) && (highs[i] as number) <= budget) heapPush(heap, i, aboveIn);
       else integrate(i);
       answer = decided();
       if (answer !== undefined) return answer;
