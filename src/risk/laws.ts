@@ -962,9 +962,11 @@ function latticeCover(from: number, to: number): void {
 // are unchanged), which leaves most of a wide window unevaluated. NaN limits: no such shortcut (closures).
 let latticeHighLimit = NaN;
 let latticeLowLimit = NaN;
-function latticeFill(from: number, to: number, centre: number): void {
+// Returns the first point at and above the centre that holds the high limit (to + 1 when none does).
+function latticeFill(from: number, to: number, centre: number): number {
   const values = lattice;
   let reached = false;
+  let first = to + 1;
   for (let m = centre; m <= to; m++) {
     const at = m - latticeBase;
     let value = values[at] as number;
@@ -972,7 +974,10 @@ function latticeFill(from: number, to: number, centre: number): void {
       value = reached ? latticeHighLimit : latticeValue(m * latticeStep);
       values[at] = value;
     }
-    if (value === latticeHighLimit) reached = true;
+    if (!reached && value === latticeHighLimit) {
+      reached = true;
+      first = m;
+    }
   }
   reached = false;
   for (let m = centre - 1; m >= from; m--) {
@@ -984,6 +989,7 @@ function latticeFill(from: number, to: number, centre: number): void {
     }
     if (value === latticeLowLimit) reached = true;
   }
+  return first;
 }
 // the mixtures already summed in the current search (its bracket ends are summed twice)
 const MIXTURE_MEMO = 64;
@@ -1001,11 +1007,17 @@ function latticeMixture(j: number): number {
   const count = w.length;
   const half = (count - 1) / 2;
   latticeCover(j + half - (count - 1), j + half);
-  if (latticeHighLimit === latticeHighLimit) latticeFill(j + half - (count - 1), j + half, j);
+  // the sum runs from the highest point down; where the high limit is 0, the terms above its first point add
+  // exact zeros to a sum of 0, and are skipped
+  let skip = 0;
+  if (latticeHighLimit === latticeHighLimit) {
+    const first = latticeFill(j + half - (count - 1), j + half, j);
+    if (latticeHighLimit === 0) skip = Math.max(0, j + half - first + 1);
+  }
   const values = lattice;
   const offset = j + half - latticeBase;
   let sum = 0;
-  for (let i = 0; i < count; i++) {
+  for (let i = skip; i < count; i++) {
     let value = values[offset - i] as number;
     if (value !== value) {
       value = latticeValue((j + half - i) * latticeStep);
