@@ -175,6 +175,24 @@ describe("judgePrediction", () => {
     });
   });
 
+  it("merges given thresholds over the defaults, in the defaults' key order, and judges with them", () => {
+    const result = judgePrediction(spec(), PREDICTION, { thresholds: { headroomAtRisk: 40, flushedAtRisk: 0.5 } });
+    expect(Object.keys(result.thresholds)).toEqual(Object.keys(DEFAULT_THRESHOLDS));
+    expect(result.thresholds).toEqual({ ...DEFAULT_THRESHOLDS, headroomAtRisk: 40, flushedAtRisk: 0.5 });
+    // 40 binades of headroom asked for: every binary16 tensor that keeps a headroom is short of it
+    const binary16 = result.formats.find((f) => f.format === "binary16");
+    expect(binary16?.findings.some((f) => f.kind === "little-headroom")).toBe(true);
+    expect(judgePrediction(spec(), PREDICTION).thresholds).toEqual(DEFAULT_THRESHOLDS);
+  });
+
+  it("gives every tensor, risk and format the same keys in the same order (one layout for each kind of result)", () => {
+    const result = judgePrediction(spec(), PREDICTION, { lossScale: 64, everyFormat: true });
+    const keys = (o: object) => Object.keys(o).join(",");
+    expect(new Set(result.tensors.map(keys)).size).toBe(1);
+    expect(new Set(result.tensors.flatMap((t) => t.risks.map(keys))).size).toBe(1);
+    expect(new Set(result.formats.map(keys)).size).toBe(1);
+  });
+
   it("rejects an unknown format and a non-positive loss scale with a RangeError echoing the value", () => {
     expect(() => judgePrediction(spec(), PREDICTION, { formats: ["fp12" as never] })).toThrow(/"fp12"/);
     expect(() => judgePrediction(spec(), PREDICTION, { lossScale: -2 })).toThrow(/-2/);
