@@ -5,11 +5,11 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
+import { energyBelowBounds, energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
 import { lossScaleCurveParts } from "../risk/curve-parts.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import { simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
+import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
@@ -98,7 +98,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const byId = new Map(gradients.map((t) => [t.id, t] as const));
   const dynamic =
     window.empty || options.simulate === "always"
-      ? simulateDynamicScale(dynamicModel(gradients, limits, windowOptions), {
+      ? simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, { ...DEFAULT_DYNAMIC_SCALE, ...options.dynamic }.lowestScale), {
           steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
           seed: options.seed ?? 1,
           horizonPoints: 8,
@@ -178,7 +178,7 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
  * Overflow probability per step over all gradient tensors as they drift from their start to their end profiles: the
  * model {@link lossScaleAnswer} simulates a dynamic scale with (exported for tests of its bounds).
  */
-export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions): DynamicScaleModel {
+export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions, lowestScale = 1): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, MagnitudeProfile[]>();
   const at = (progress: number): MagnitudeProfile[] => {
@@ -191,6 +191,9 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
   };
   const narrowings = new Map<number, [number, OverflowNarrowing][]>();
   const lead = { index: -1 };
+  // per point of the horizon: for each tensor the smallest scale at which its flushing was found within the tolerance,
+  // and whether its bound at the lowest scale was taken
+  const flushing = new Map<number, { tolerated: Float64Array; anchored: Uint8Array }>();
   // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
   // scale takes), without a scaled copy per scale
   return {
@@ -208,8 +211,32 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
       return narrowing;
     },
     flushesTooMuch(scale: number, progress: number) {
+      const profiles = at(progress);
+      const n = profiles.length;
+      let known = flushing.get(progress);
+      if (known === undefined) {
+        known = { tolerated: new Float64Array(n).fill(Infinity), anchored: new Uint8Array(n) };
+        flushing.set(progress, known);
+      }
+      const tolerance = options.flushTolerance;
       const bound = limits.flushBound / scale;
-      return at(progress).some((p) => energyBelowExceeds(p, bound, options.flushTolerance));
+      for (let i = 0; i < n; i++) {
+        // the flushed share falls as the scale grows: a tensor within the tolerance at a smaller scale is within it here
+        if (known.tolerated[i]! <= scale) continue;
+        const p = profiles[i]!;
+        if (known.anchored[i] === 0 && lowestScale <= scale) {
+          // once per tensor and point: its cheap bound at the lowest scale the simulation takes, which then serves every
+          // scale (widened for the rounding of evaluations at two thresholds)
+          known.anchored[i] = 1;
+          if (energyBelowBounds(p, limits.flushBound / lowestScale)[1] <= tolerance * (1 - 1e-9)) {
+            known.tolerated[i] = lowestScale;
+            continue;
+          }
+        }
+        if (energyBelowExceeds(p, bound, tolerance)) return true;
+        known.tolerated[i] = Math.min(known.tolerated[i]!, scale);
+      }
+      return false;
     },
   };
 }

@@ -4,7 +4,7 @@
 // (independent tensors; the union of independent events, common practice), evaluated tensor by tensor.
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
+import { energyBelow, limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import { dynamicModel, profileAt } from "../../src/scale/recommend.js";
@@ -73,6 +73,23 @@ describe("the dynamic-scale model's bounds", () => {
       }
     }
     expect(checked).toBe(60);
+  });
+
+  it("say whether any tensor flushes too much exactly as each tensor's integral does, in any order of scales", () => {
+    const model = dynamicModel(tensors, limits, DEFAULT_WINDOW_OPTIONS);
+    // scales up and down, as a dynamic scale moves (what one scale learns is reused at the others of its point)
+    const scales = [0, 6, 3, 12, 1, 9, 2, 20, 0, 5, 14, 4].map((k) => 2 ** k);
+    let flushes = 0;
+    for (const progress of [0, 0.5, 1]) {
+      for (const scale of scales) {
+        const direct = tensors.some((t) => energyBelow(profileAt(t, progress), limits.flushBound / scale) > DEFAULT_WINDOW_OPTIONS.flushTolerance);
+        expect(model.flushesTooMuch(scale, progress)).toBe(direct);
+        if (direct) flushes++;
+      }
+    }
+    // both answers occur
+    expect(flushes).toBeGreaterThan(0);
+    expect(flushes).toBeLessThan(3 * scales.length);
   });
 
   it("give a simulation identical to one with the probability computed directly", () => {
