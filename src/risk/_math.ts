@@ -83,6 +83,10 @@ export function normalCdf(x: number): number {
   return 0.5 * erfc(-x / Math.SQRT2);
 }
 
+// the last two levels asked of normalUpperQuantile and their quantiles
+const QUANTILE_ASKED = new Float64Array(2).fill(NaN);
+const QUANTILE_FOUND = new Float64Array(2);
+
 /**
  * The z with P(Z > z) = q (0 < q < 1), by bisection on the fast tail: accurate to about 1e-7 relative in q.
  * ±∞ at q = 0 and q = 1.
@@ -91,6 +95,17 @@ export function normalUpperQuantile(q: number): number {
   if (!(q >= 0 && q <= 1)) return NaN;
   if (q === 0) return Infinity;
   if (q === 1) return -Infinity;
+  // the callers ask for the same few levels (the quantile levels of the statistics) over and over
+  if (q === QUANTILE_ASKED[0]) return QUANTILE_FOUND[0] as number;
+  if (q === QUANTILE_ASKED[1]) return QUANTILE_FOUND[1] as number;
+  const z = bisectQuantile(q);
+  QUANTILE_ASKED[1] = QUANTILE_ASKED[0] as number;
+  QUANTILE_FOUND[1] = QUANTILE_FOUND[0] as number;
+  QUANTILE_ASKED[0] = q;
+  QUANTILE_FOUND[0] = z;
+  return z;
+}
+function bisectQuantile(q: number): number {
   let lo = -40;
   let hi = 40;
   for (let i = 0; i < 80 && hi - lo > 1e-12; i++) {
