@@ -372,13 +372,14 @@ function measureKind(measure: "any-above" | "below" | "energy-below"): number {
 /**
  * {@link overDraws} of a profile's element law at threshold t, without a closure: `anyOf(share·above(r, t), n)`
  * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
- * Equal, bit for bit, to overDraws with those closures.
+ * The Gaussian shares below are read off rows shared by every threshold (within 2e-6 of the rule's sum, see
+ * gaussianTableValue); everything else equals, bit for bit, overDraws with those closures ({@link directLawOverDraws}).
  */
 export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
   const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, positiveOnly);
   if (!Number.isNaN(decided)) return decided;
-  if (kind !== ANY_ABOVE && integrandLaw === GAUSSIAN && profile.log2Spread >= TABLE_MIN_SPREAD) {
+  if (kind !== ANY_ABOVE && integrandLaw === GAUSSIAN) {
     const value = gaussianTableValue(kind, profile.log2Spread, Math.log2(t) - Math.log2(profile.rms));
     if (!Number.isNaN(value)) return value;
   }
@@ -386,8 +387,8 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
 }
 
 /**
- * {@link lawOverDraws} by the draw rule itself, without the shared lattices of the Gaussian shares: the direct
- * method the lattice interpolation is held to in the tests.
+ * {@link lawOverDraws} by the draw rule itself, without the shared rows of the Gaussian shares: the direct
+ * method the rows' interpolation is held to in the tests.
  */
 export function directLawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
   const decided = setLawIntegrand(profile, measureKind(measure), t, positiveOnly);
@@ -718,185 +719,120 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
   return [Math.max(outerLow, low), Math.min(outerHigh, high)];
 }
 
-// Shared lattices of the Gaussian shares. The Gaussian law's below(r, t) and energyBelow(r, t) depend on t/r alone,
-// so a draw sum is F(x) = Σ_i w_i·G(x − spread·z_i) with x = log2(t/rms) and G(y) the law at r = 1, t = 2^y. On a
-// lattice y_k = (k/m)·h, h = spread·DRAW_STEP (the rule's node spacing in y, cut into m parts), the rule's nodes
-// fall on lattice points too: F_k = Σ_i w_i·G_{k + m·(half − i)}. One lattice per (measure, spread) serves every
-// tensor of that spread, every threshold, format and loss scale, each G and F computed once. F is the rule's sum
-// at every x, ripples of the rule included (its nodes are h apart, F's features G's own, about a binade wide), so
-// the lattice is made at most TABLE_STEP wide and F between its points interpolated by the Lagrange polynomial
-// through the TABLE_POINTS nearest (Abramowitz & Stegun 25.2.15 for its error term) in log F, or in log(1 − F)
-// when F is past 1/2 there, so both tails keep their relative accuracy; test/risk/laws.test.ts bounds the
-// difference from the direct rule over a sweep of spreads and thresholds. Where a point is 0, or within
-// TABLE_NEAR_ONE of 1, the direct rule decides. Below TABLE_MIN_SPREAD the spread is too small to pay for a lattice.
+// Shared tables of the Gaussian shares. The Gaussian law's below(r, t) and energyBelow(r, t) depend on t/r alone,
+// so a draw sum is F(x) = Σ_i w_i·G(x − spread·z_i) with x = log2(t/rms) and G(y) the law at r = 1, t = 2^y. For the
+// spreads a·ROW_STEP (rows) every node offset spread·z_i = a·(i − half)/128 lies on a grid of 1/128 binade, and so
+// does x − spread·z_i for x on the grid of 1/16 binade: F of every row at every x_k = k/16 is a sum of G values on
+// that one grid, each G computed once per process for all rows, thresholds, formats and loss scales. A share at
+// (spread, x) is the Lagrange polynomial through the TABLE_POINTS nearest x_k on each of the TABLE_POINTS nearest
+// rows, then through those in the spread (Abramowitz & Stegun 25.2.15 for the error term), in log F, so small
+// shares keep their relative accuracy. F is smooth in x and in the spread, the rule's ripple (its nodes are
+// spread/8 apart) is not: the rows stand in for the rule at the query's spread to within that ripple, below 1e-6 of
+// F up to a spread of 2.5 (it grows as e^{−c/spread²}). In the complement of a share near 1 the ripple is too
+// large, so past ROWS_UPPER_SHARE the direct rule decides, as it does where a point is 0 and outside the spreads
+// TABLE_MIN_SPREAD … TABLE_MAX_SPREAD. test/risk/laws.test.ts bounds the difference from the direct rule over a
+// sweep of spreads and thresholds.
 const TABLE_MIN_SPREAD = 0.25;
-const TABLE_STEP = 1 / 16;
+const TABLE_MAX_SPREAD = 2.5;
+const ROWS_UPPER_SHARE = 0.9;
 const TABLE_POINTS = 6;
-const TABLE_NEAR_ONE = 1e-6;
-const TABLE_SLOTS = 128;
-interface GaussianLattice {
-  spread: number;
-  kind: number;
-  /** h = spread·DRAW_STEP */
-  step: number;
-  /** lattice points per node spacing h */
-  parts: number;
-  gBase: number;
-  g: Float64Array;
-  fBase: number;
-  f: Float64Array;
+const ROW_STEP = 1 / 16;
+// grid points of G per binade, and of F per binade (x_k = k/16 is G point 8k)
+const G_PER_BINADE = 128;
+const F_STRIDE = 8;
+interface Window {
+  base: number;
+  values: Float64Array;
 }
-const TABLES: (GaussianLattice | undefined)[] = new Array<GaussianLattice | undefined>(2 * TABLE_SLOTS);
-// per slot, the spread last asked for without a lattice and how often in a row: a lattice is built on the
-// TABLE_USES-th ask, so spreads asked for a few times (most tensors of a network have their own) keep the direct rule
-const TABLE_USES = 12;
-const ASKED = new Float64Array(2 * TABLE_SLOTS).fill(NaN);
-const ASKS = new Int32Array(2 * TABLE_SLOTS);
-function gaussianLattice(kind: number, spread: number, parts: number): GaussianLattice | undefined {
-  BITS[0] = spread;
-  const hash = (Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b) >>> 24) & (TABLE_SLOTS - 1);
-  const slot = 2 * hash + (kind === BELOW ? 0 : 1);
-  let table = TABLES[slot];
-  if (table !== undefined && table.spread === spread && table.parts === parts) return table;
-  if (ASKED[slot] !== spread) {
-    ASKED[slot] = spread;
-    ASKS[slot] = 0;
-  }
-  if (++ASKS[slot]! < TABLE_USES) return undefined;
-  table = { spread, kind, step: spread * DRAW_STEP, parts, gBase: 0, g: new Float64Array(0), fBase: 0, f: new Float64Array(0) };
-  TABLES[slot] = table;
-  return table;
-}
-// lattice points per node spacing for a spread's lattice used for interpolation
-function tableParts(spread: number): number {
-  return Math.max(1, Math.ceil((spread * DRAW_STEP) / TABLE_STEP));
-}
-// a window that holds lattice points [from, to], keeping the values already there (NaN: not yet computed)
-function coverWindow(values: Float64Array, base: number, from: number, to: number): [Float64Array, number] {
-  if (values.length > 0 && from >= base && to < base + values.length) return [values, base];
-  const margin = 64;
+// make points [from, to] of a window addressable, keeping the values already there (NaN: not yet computed)
+function coverWindow(window: Window, from: number, to: number): void {
+  const { base, values } = window;
+  if (values.length > 0 && from >= base && to < base + values.length) return;
+  const margin = 256;
   const low = values.length > 0 ? Math.min(from - margin, base) : from - margin;
   const high = values.length > 0 ? Math.max(to + margin, base + values.length - 1) : to + margin;
   const grown = new Float64Array(high - low + 1).fill(NaN);
   if (values.length > 0) grown.set(values, base - low);
-  return [grown, low];
+  window.base = low;
+  window.values = grown;
 }
-// F_k; at k = m·j the order and the arithmetic of latticeMixture's sum (G at ((k/m)·h) with k/m = j + half − i
-// exact), so a crossing read off this lattice equals the per-call one bit for bit
-function latticeSum(table: GaussianLattice, k: number): number {
-  if (!(k >= table.fBase && k < table.fBase + table.f.length)) [table.f, table.fBase] = coverWindow(table.f, table.fBase, k, k);
-  const f = table.f;
-  const at = k - table.fBase;
-  const known = f[at] as number;
+// G on the grid of 1/128 binade, per measure (BELOW, ENERGY_BELOW)
+const GRID: Window[] = [
+  { base: 0, values: new Float64Array(0) },
+  { base: 0, values: new Float64Array(0) },
+];
+// the rows' F at x_k, per measure and row a
+const ROWS: (Window | undefined)[] = [];
+// F of row a (spread a/16) at x_k = k/16
+function rowSum(kind: number, a: number, k: number): number {
+  const slot = 2 * a + (kind === BELOW ? 0 : 1);
+  let row = ROWS[slot];
+  if (row === undefined) {
+    row = { base: 0, values: new Float64Array(0) };
+    ROWS[slot] = row;
+  }
+  if (!(k >= row.base && k < row.base + row.values.length)) coverWindow(row, k, k);
+  const known = row.values[k - row.base] as number;
   if (known === known) return known;
   const w = DRAW_NODES.w;
   const count = w.length;
   const half = (count - 1) / 2;
-  const parts = table.parts;
-  const top = k + parts * half;
-  [table.g, table.gBase] = coverWindow(table.g, table.gBase, top - parts * (count - 1), top);
-  const g = table.g;
-  const offset = top - table.gBase;
-  const step = table.step;
-  const energy = table.kind === ENERGY_BELOW;
+  // node i sits at z = (i − half)/8, so x_k − (a/16)·z is G point 8k − a·(i − half)
+  const top = F_STRIDE * k + a * half;
+  const grid = GRID[kind === BELOW ? 0 : 1] as Window;
+  coverWindow(grid, top - a * (count - 1), top);
+  const g = grid.values;
+  const offset = top - grid.base;
+  const energy = kind === ENERGY_BELOW;
   let sum = 0;
   for (let i = 0; i < count; i++) {
-    const at = offset - parts * i;
+    const at = offset - a * i;
     let value = g[at] as number;
     if (value !== value) {
-      const t = 2 ** (((top - parts * i) / parts) * step);
+      const t = 2 ** ((top - a * i) / G_PER_BINADE);
       value = energy ? gaussianEnergyBelow(1, t) : gaussianBelow(1, t);
       g[at] = value;
     }
     sum += (w[i] as number) * value;
   }
-  f[at] = sum;
+  row.values[k - row.base] = sum;
   return sum;
 }
-// The spreads up to TABLE_MAX_SPREAD are read off rows of lattices at the spreads a·ROW_STEP instead (most tensors
-// of a network have a spread of their own, asked for a few times): the value at x on each of the TABLE_POINTS
-// nearest rows, then the Lagrange polynomial through those in the spread. F is smooth in the spread, but the rule's
-// ripple (its nodes are spread/8 apart in x) is not, so rows stand in for the rule at the query's spread to within
-// that ripple: below 2e-5 of F and of 1 − F up to a spread of 2.5 (it grows as e^{−c/spread²}; measured in the test).
-const TABLE_MAX_SPREAD = 2.5;
-const ROWS_UPPER_SHARE = 0.9;
-const ROW_STEP = 1 / 16;
-const ROWS: (GaussianLattice | undefined)[] = [];
-function rowLattice(kind: number, row: number): GaussianLattice {
-  const slot = 2 * row + (kind === BELOW ? 0 : 1);
-  let table = ROWS[slot];
-  if (table === undefined) {
-    const spread = row * ROW_STEP;
-    const parts = tableParts(spread);
-    table = { spread, kind, step: spread * DRAW_STEP, parts, gBase: 0, g: new Float64Array(0), fBase: 0, f: new Float64Array(0) };
-    ROWS[slot] = table;
-  }
-  return table;
-}
-// the Lagrange polynomial through values[from … from + TABLE_POINTS − 1] at 0 … TABLE_POINTS − 1, evaluated at s
-function lagrange(values: Float64Array, from: number, s: number): number {
-  let result = 0;
+// Lagrange weights at s over the points 0 … TABLE_POINTS − 1
+const X_WEIGHTS = new Float64Array(TABLE_POINTS);
+const S_WEIGHTS = new Float64Array(TABLE_POINTS);
+function lagrangeWeights(into: Float64Array, s: number): void {
   for (let k = 0; k < TABLE_POINTS; k++) {
     let basis = 1;
     for (let m = 0; m < TABLE_POINTS; m++) if (m !== k) basis *= (s - m) / (k - m);
-    result += basis * (values[from + k] as number);
+    into[k] = basis;
   }
-  return result;
 }
 const PATCH = new Float64Array(TABLE_POINTS * TABLE_POINTS);
-const PATCH_AT = new Float64Array(TABLE_POINTS);
-const ROW_VALUES = new Float64Array(TABLE_POINTS);
-// F on a lattice at the TABLE_POINTS points around x into PATCH[offset …], and the position of x among them
-// (PATCH_AT[index]); false where a point is 0
-function gatherRow(table: GaussianLattice, x: number, index: number): boolean {
-  const u = (x / table.step) * table.parts;
-  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
-  const offset = index * TABLE_POINTS;
-  for (let k = 0; k < TABLE_POINTS; k++) {
-    const value = latticeSum(table, first + k);
-    if (!(value > 0)) return false;
-    PATCH[offset + k] = value;
-  }
-  PATCH_AT[index] = u - first;
-  return true;
-}
-// the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the lattices; NaN where the
+// the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
 // direct rule decides
 function gaussianTableValue(kind: number, spread: number, x: number): number {
-  if (!Number.isFinite(x)) return NaN;
-  let rows = 1;
-  let spreadAt = 0;
-  if (spread <= TABLE_MAX_SPREAD) {
-    const v = spread / ROW_STEP;
-    const first = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
-    for (let r = 0; r < TABLE_POINTS; r++) if (!gatherRow(rowLattice(kind, first + r), x, r)) return NaN;
-    rows = TABLE_POINTS;
-    spreadAt = v - first;
-  } else {
-    const table = gaussianLattice(kind, spread, tableParts(spread));
-    if (table === undefined || !gatherRow(table, x, 0)) return NaN;
+  if (!(spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) || !Number.isFinite(x)) return NaN;
+  const v = spread / ROW_STEP;
+  const firstRow = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
+  const u = x / ROW_STEP;
+  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
+  for (let r = 0; r < TABLE_POINTS; r++) {
+    for (let k = 0; k < TABLE_POINTS; k++) {
+      const value = rowSum(kind, firstRow + r, first + k);
+      if (!(value > 0 && value <= ROWS_UPPER_SHARE)) return NaN;
+      PATCH[r * TABLE_POINTS + k] = Math.log(value);
+    }
   }
-  const count = rows * TABLE_POINTS;
-  let upper = true;
-  for (let k = 0; k < count; k++) if (!((PATCH[k] as number) > 0.5)) upper = false;
-  // Across rows the complement of a share near 1 follows the rule's ripple too closely to interpolate; up to
-  // ROWS_UPPER_SHARE the share itself is, and its complement keeps its relative accuracy within a factor 10.
-  if (upper && rows > 1) {
-    for (let k = 0; k < count; k++) if (!((PATCH[k] as number) <= ROWS_UPPER_SHARE)) return NaN;
-    upper = false;
+  lagrangeWeights(X_WEIGHTS, u - first);
+  lagrangeWeights(S_WEIGHTS, v - firstRow);
+  let result = 0;
+  for (let r = 0; r < TABLE_POINTS; r++) {
+    let row = 0;
+    for (let k = 0; k < TABLE_POINTS; k++) row += (X_WEIGHTS[k] as number) * (PATCH[r * TABLE_POINTS + k] as number);
+    result += (S_WEIGHTS[r] as number) * row;
   }
-  for (let k = 0; k < count; k++) {
-    const value = PATCH[k] as number;
-    if (upper) {
-      const complement = 1 - value;
-      if (!(complement > TABLE_NEAR_ONE)) return NaN;
-      PATCH[k] = Math.log(complement);
-    } else PATCH[k] = Math.log(value);
-  }
-  for (let r = 0; r < rows; r++) ROW_VALUES[r] = lagrange(PATCH, r * TABLE_POINTS, PATCH_AT[r] as number);
-  const result = rows === 1 ? (ROW_VALUES[0] as number) : lagrange(ROW_VALUES, 0, spreadAt);
-  const value = upper ? 1 - Math.exp(result) : Math.exp(result);
-  return Math.min(1, Math.max(0, value));
+  return Math.min(1, Math.max(0, Math.exp(result)));
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a
@@ -1035,8 +971,9 @@ function memoMixture(j: number, sum: number): number {
   return sum;
 }
 // The Gaussian share below, where its rows cover the spread, is read off them (gaussianTableValue) instead of
-// summed on the search's own lattice: the same rule's sums at the same lattice points to about 1e-8, so the level
-// moves by about that over the slope (test/risk/laws.test.ts bounds it against the lattice's own sums).
+// summed on the search's own lattice: the rule's sums at the search's lattice points to about 1e-6 relative, so the
+// level moves by about that over the slope of the log share (test/risk/laws.test.ts bounds it against the lattice's
+// own sums).
 let latticeTable = false;
 let latticeSpread = 0;
 

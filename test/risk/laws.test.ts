@@ -130,10 +130,10 @@ describe("draw sums of the element laws", () => {
     }
   });
 
-  // The Gaussian shares below and energy below are read off lattices of the rule's sums shared by every threshold
-  // (rows of spreads 1/16 apart up to a spread of 2.5, one lattice per spread above), interpolated in x = log2(t/rms)
-  // and the spread. Held to the direct rule over spreads and thresholds wherever the rule, not the closed form of
-  // the small ratios, gives the share: relative to the value and to its complement (down to 1e-6, as above).
+  // The Gaussian shares below and energy below are read off rows of the rule's sums shared by every threshold
+  // (spreads 1/16 apart from 0.25 to 2.5; the direct rule past them), interpolated in x = log2(t/rms) and the
+  // spread. Held to the direct rule over spreads and thresholds wherever the rule, not the closed form of the small
+  // ratios, gives the share: relative to the value and to its complement (down to 1e-6, as above).
   it("read off the shared lattices stay within 2e-6 of the direct rule", () => {
     let worst = 0;
     let worstCase: unknown = null;
