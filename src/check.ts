@@ -69,7 +69,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin
   const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null ? windowSummary(answer) : undefined;
   const judged = judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
-  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction);
+  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps);
   // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
   const scaleVerdict: Verdict =
     answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";

@@ -157,10 +157,12 @@ export interface OptimizerCheckOptions {
 }
 
 /**
- * Assess the optimizer of a spec under a precision plan.
+ * Assess the optimizer of a spec under a precision plan. `plannedSteps` (the horizon's training steps), when
+ * given, is set against the steps stochastic rounding needs to average out, so a remedy that would not within
+ * the run says so.
  * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
  */
-export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, prediction: Prediction): OptimizerCheck {
+export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, prediction: Prediction, plannedSteps?: number): OptimizerCheck {
   const weightFormat = getFormat(plan.weights);
   const stateFormat = getFormat(plan.optimizerStates);
   const master = plan.masterWeights === "none" ? null : getFormat(plan.masterWeights);
@@ -235,7 +237,7 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
       })()
     : null;
 
-  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd });
+  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps);
 }
 
 /** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
@@ -262,6 +264,7 @@ function summarise(
     /** each weight's gradient at the end of the horizon, by weight id */
     gradientEnd: Map<string, MagnitudeProfile>;
   },
+  plannedSteps: number | undefined,
 ): OptimizerCheck {
   let worst: OptimizerCheck["worst"] = null;
   let worstPeak = 0;
@@ -340,10 +343,13 @@ function summarise(
     const target = master ? ` into ${into}` : "";
     const steps = u !== null ? u.stochasticStepsToAverage : stochasticStepsToAverage(decayLoss!.ratio, 1, updateFormat);
     // a typical update of an ulp or more needs no averaging: only the noise of smaller ones would be worth a count
+    const count = (n: number) => (n < 1e6 ? `${n}` : n.toExponential(2).replace("e+", "e"));
     const noise =
       steps <= 1
         ? ""
-        : `; the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% after about ${steps < 1e6 ? steps : steps.toExponential(2).replace("e+", "e")} steps`;
+        : plannedSteps !== undefined && steps > plannedSteps
+          ? `, but the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% only after about ${count(steps)} steps, more than the ${count(plannedSteps)} planned`
+          : `; the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% after about ${count(steps)} steps`;
     found.push(
       `round the weight update stochastically${target}: nothing lost in expectation${u !== null && decayLoss !== null ? ", weight decay steps included" : ""}${noise} (no extra memory)`,
     );

@@ -102,6 +102,17 @@ describe("checkOptimizer remedies when the plan already keeps a binary32 master 
     expect(tiny.remedies[0]).toMatch(/^round the weight update stochastically into the binary32 master copy: nothing lost in expectation; the rounding noise of dense-0\/weight averages below 10% after about 1\.34e10 steps \(no extra memory\)$/);
   });
 
+  it("sets the steps stochastic rounding needs against the planned training steps", () => {
+    // the same 1.34e10 steps as above (q = 2^-27): more than 20000 planned steps, so the sentence says so
+    const short = checkOptimizer(adam(2 ** -50), plan("binary16", "binary32"), prediction(), 20000);
+    expect(short.remedies).toEqual([
+      "round the weight update stochastically into the binary32 master copy: nothing lost in expectation, but the rounding noise of dense-0/weight averages below 10% only after about 1.34e10 steps, more than the 20000 planned (no extra memory)",
+    ]);
+    // 12700 steps (q = 2^-7) fit in 20000 planned steps: the plain sentence
+    const fits = checkOptimizer(adam(2 ** -30), plan("binary16", "binary32"), prediction(), 20000);
+    expect(fits.remedies.some((r) => r.endsWith("averages below 10% after about 12700 steps (no extra memory)"))).toBe(true);
+  });
+
   it("with stored binary32 weights and no master copy, does not propose a binary32 master copy", () => {
     const single = checkOptimizer(adam(2 ** -30), plan("binary32", "none"), prediction());
     expect(single.remedies).toEqual([
