@@ -2,7 +2,7 @@
  * A whole batch: expanded inputs × variants → tasks → the worker pool → rows in input order.
  */
 import type { BatchInput } from "./paths.js";
-import { runPool } from "./pool.js";
+import { defaultWorkers, runPool, type TaskOutcome } from "./pool.js";
 import { tuneTieringForBatch } from "./tiering.js";
 import type { SpecTask, TaskResult } from "./evaluate.js";
 import type { BatchRow } from "./types.js";
@@ -65,15 +65,20 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
   let done = plan.length - tasks.length;
   if (done > 0) options.onRow?.(done, plan.length);
   // before the workers start: their isolates take V8's flags as they stand
-  if (tasks.length > 0) tuneTieringForBatch();
-  const outcomes = await runPool<SpecTask, TaskResult>(options.workerUrl ?? DEFAULT_WORKER_URL, tasks, {
-    ...(options.workers !== undefined ? { workers: options.workers } : {}),
-    workerData: options.workerData,
-    onSettled: () => {
-      done += 1;
-      options.onRow?.(done, plan.length);
-    },
-  });
+  const untune = tasks.length > 0 ? tuneTieringForBatch(Math.min(options.workers ?? defaultWorkers(), tasks.length)) : () => {};
+  let outcomes: TaskOutcome<TaskResult>[];
+  try {
+    outcomes = await runPool<SpecTask, TaskResult>(options.workerUrl ?? DEFAULT_WORKER_URL, tasks, {
+      ...(options.workers !== undefined ? { workers: options.workers } : {}),
+      workerData: options.workerData,
+      onSettled: () => {
+        done += 1;
+        options.onRow?.(done, plan.length);
+      },
+    });
+  } finally {
+    untune();
+  }
   const rows: BatchRow[] = plan.map((entry, index) =>
     "row" in entry ? entry.row : { index, file: entry.task.file, variant: entry.task.variant?.name ?? null, status: "error", error: { kind: "internal", message: "not evaluated" } },
   );

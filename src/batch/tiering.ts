@@ -1,33 +1,67 @@
 /**
- * V8 tiering for a batch. Every worker thread is its own V8 isolate and compiles check() afresh: with
- * V8's defaults each isolate spends about as much processor time on TurboFan compiles on V8's
- * background threads (optimising everything that runs a few times, inlining deeply, then deoptimising
- * and compiling again) as on checking 1,000 specs, so on two cores the pool's workers fight their own
- * compiler. A larger interrupt budget optimises only code that stays hot, and a smaller cumulative
- * inlining budget makes each compile cheaper; measured on the bench's 1,000 specs (2 cores,
- * DEVELOPERS.md "Batch pool"), the pool's processor time fell by about a third and one worker's
- * checking thread did not slow. V8 flags are per process, so this is set only when a batch starts its
- * pool, never for callers of check() alone.
+ * V8 tiering for a batch whose workers fill every core. Each worker thread is its own V8 isolate and
+ * compiles check() afresh; with V8's defaults an isolate spends on TurboFan compiles, on V8's background
+ * threads, about half as much processor time as on checking 1,000 specs (optimising everything that
+ * runs a few times, inlining deeply, deoptimising and compiling again). One worker gets those compiles
+ * for free on a spare core; workers that fill the cores pay for them with checking time. A larger
+ * interrupt budget optimises only code that stays hot and a smaller cumulative inlining budget makes
+ * each compile cheaper: the pool's processor time falls by about a quarter (measured on Node 20's V8 11.3,
+ * DEVELOPERS.md "Batch pool and V8 tiering"). V8 flags are per process, so they are set only while such a
+ * pool runs and put back afterwards; callers of check() alone, and batches that leave a core spare, keep
+ * V8's defaults.
  */
+import { availableParallelism } from "node:os";
 import { setFlagsFromString } from "node:v8";
 
-/** The V8 flags a batch sets: optimise later (default budget 67,584) and inline less per compile (default 920). */
-export const BATCH_V8_FLAGS: readonly string[] = ["--interrupt-budget=270000", "--max-inlined-bytecode-size-cumulative=200"];
-
-/**
- * The flags of {@link BATCH_V8_FLAGS} that the user has not set: one the process was started with (in
- * its arguments or NODE_OPTIONS) is the user's choice and stays.
- */
-export function batchFlagsToSet(execArgv: readonly string[], nodeOptions = ""): string[] {
-  const given = [...execArgv, ...nodeOptions.split(/\s+/)].map((arg) => arg.split("=")[0]!.replace(/_/g, "-"));
-  return BATCH_V8_FLAGS.filter((flag) => !given.includes(flag.split("=")[0]!));
+/** A flag a batch sets, with V8 11.3's default (Node 20), which it puts back. */
+interface BatchFlag {
+  name: string;
+  batch: number;
+  v8Default: number;
 }
 
-let tuned = false;
+/** Optimise later (V8's budget 67,584) and inline less per compile (V8's 920). */
+export const BATCH_V8_FLAGS: readonly BatchFlag[] = [
+  { name: "--interrupt-budget", batch: 270_000, v8Default: 67_584 },
+  { name: "--max-inlined-bytecode-size-cumulative", batch: 200, v8Default: 920 },
+];
 
-/** Set the batch's V8 flags for this process (once; workers started afterwards inherit them). */
-export function tuneTieringForBatch(): void {
-  if (tuned) return;
-  tuned = true;
-  for (const flag of batchFlagsToSet(process.execArgv, process.env.NODE_OPTIONS)) setFlagsFromString(flag);
+/**
+ * The batch flags to set: none unless the engine is the one they were measured on (V8 11, Node 20) and
+ * the workers fill every core; never one the process was started with (in its arguments or
+ * NODE_OPTIONS, in either spelling), which is the user's choice.
+ */
+export function batchFlagsToSet(
+  workers: number,
+  cores: number,
+  v8Version: string,
+  execArgv: readonly string[],
+  nodeOptions = "",
+): BatchFlag[] {
+  if (workers < cores || !v8Version.startsWith("11.")) return [];
+  const given = [...execArgv, ...nodeOptions.split(/\s+/)].map((arg) => arg.split("=")[0]!.replace(/_/g, "-"));
+  return BATCH_V8_FLAGS.filter((flag) => !given.includes(flag.name));
+}
+
+let active = 0; // pools running with the batch flags
+let tuned: BatchFlag[] = [];
+
+/**
+ * Set the batch flags for a pool of `workers` threads (workers started afterwards take them); the
+ * returned function puts V8's defaults back once the last such pool has ended.
+ */
+export function tuneTieringForBatch(workers: number): () => void {
+  if (active === 0) {
+    tuned = batchFlagsToSet(workers, availableParallelism(), process.versions.v8, process.execArgv, process.env.NODE_OPTIONS);
+    if (tuned.length === 0) return () => {};
+    for (const flag of tuned) setFlagsFromString(`${flag.name}=${flag.batch}`);
+  }
+  active += 1;
+  let ended = false;
+  return () => {
+    if (ended) return;
+    ended = true;
+    active -= 1;
+    if (active === 0) for (const flag of tuned) setFlagsFromString(`${flag.name}=${flag.v8Default}`);
+  };
 }
