@@ -813,6 +813,9 @@ const PATCH = new Float64Array(TABLE_POINTS * TABLE_POINTS);
 // direct rule decides
 function gaussianTableValue(kind: number, spread: number, x: number): number {
   if (!(spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) || !Number.isFinite(x)) return NaN;
+  // far above the spread every share is past 0.9 (the rule finds 1 at its two end nodes); far below it the small
+  // ratios' closed form applies: rows there would only grow the grids
+  if (x > DRAW_LIMIT * spread + 4 || x < -DRAW_LIMIT * spread - 40) return NaN;
   const v = spread / ROW_STEP;
   const firstRow = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
   const u = x / ROW_STEP;
