@@ -26,14 +26,17 @@ export function base(name: string, layers: LayerSpec[], input: NetworkSpec["inpu
   };
 }
 
-/** 500 dense + ReLU pairs of width 256 (He initialisation, biases): about 1,000 layers. */
-export function mlpSpec(): NetworkSpec {
+/**
+ * 500 dense + ReLU pairs of width 256 (He initialisation, biases): about 1,000 layers. `inputScale` (default 1)
+ * moves every magnitude a little, so a benchmark can check a spec no earlier call has seen.
+ */
+export function mlpSpec(inputScale = 1): NetworkSpec {
   const layers: LayerSpec[] = [];
   const he = { kind: "he", distribution: "normal", gain: 1 } as const;
   for (let i = 0; i < 500; i++) {
     layers.push({ family: "dense", name: `d${i}`, path: ["layers", 2 * i], width: 256, bias: true, init: he });
     layers.push({ family: "activation", name: `a${i}`, path: ["layers", 2 * i + 1], activation: "relu", slope: 0 });
   }
-  return base("mlp-1000", layers, { kind: "features", features: 256, positions: 1, scale: 1 }, { kind: "mean-squared-error", reduction: "mean", targetScale: 1 });
+  return base("mlp-1000", layers, { kind: "features", features: 256, positions: 1, scale: inputScale }, { kind: "mean-squared-error", reduction: "mean", targetScale: 1 });
 }
 
