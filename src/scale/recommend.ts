@@ -11,6 +11,7 @@ import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from ".
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
+import { IndexHeap } from "./heap.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
 export interface ScaleRemedy {
@@ -263,7 +264,7 @@ class OverflowNarrowing implements OverflowBounds {
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
   // the tensors whose p_i can still move the product (upper bound above 2^−54), largest upper bound on top
-  private readonly heap: TensorHeap;
+  private readonly heap: IndexHeap;
   private batch = 1;
   private largest = -1;
 
@@ -279,7 +280,7 @@ class OverflowNarrowing implements OverflowBounds {
     this.lows = new Float64Array(n);
     this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
-    this.heap = new TensorHeap(this.highs);
+    this.heap = new IndexHeap(this.highs);
   }
 
   /** whether p_i is known exactly */
@@ -376,53 +377,6 @@ class OverflowNarrowing implements OverflowBounds {
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
-  }
-}
-
-// A max-heap of tensor indices by a key array (the larger key on top, the lower index among equal keys); a tensor's
-// key may fall while it is out of the heap.
-class TensorHeap {
-  private items: number[] = [];
-  constructor(private readonly keys: Float64Array) {}
-  get size(): number {
-    return this.items.length;
-  }
-  private above(a: number, b: number): boolean {
-    const ka = this.keys[a]!;
-    const kb = this.keys[b]!;
-    return ka > kb || (ka === kb && a < b);
-  }
-  push(i: number): void {
-    const items = this.items;
-    let j = items.length;
-    items.push(i);
-    while (j > 0) {
-      const parent = (j - 1) >> 1;
-      if (!this.above(i, items[parent]!)) break;
-      items[j] = items[parent]!;
-      j = parent;
-    }
-    items[j] = i;
-  }
-  pop(): number {
-    const items = this.items;
-    const top = items[0]!;
-    const last = items.pop()!;
-    const n = items.length;
-    if (n > 0) {
-      let j = 0;
-      for (;;) {
-        const l = 2 * j + 1;
-        if (l >= n) break;
-        const r = l + 1;
-        const c = r < n && this.above(items[r]!, items[l]!) ? r : l;
-        if (!this.above(items[c]!, last)) break;
-        items[j] = items[c]!;
-        j = c;
-      }
-      items[j] = last;
-    }
-    return top;
   }
 }
 

@@ -6,6 +6,7 @@
  * Micikevicius et al. 2018 §3.2: choose S so that S·max|g| stays below the format's largest value; a larger S
  * has no downside unless it overflows. The window adds the lower edge from flushing (SCIENCE.md §3.2 [X]).
  */
+import { IndexHeap } from "./heap.js";
 
 /** How one gradient tensor reacts to a loss scale 2^k. Both curves must be monotone in k. */
 export interface ScaledTensorCurves {
@@ -405,17 +406,12 @@ class WindowSearch {
       if (answer !== undefined) return answer;
     }
     // tighten the largest upper bound first (ties: priority order)
-    const heap: number[] = [];
-    const aboveIn = (a: number, b: number): boolean => {
-      const ha = highs[a] as number;
-      const hb = highs[b] as number;
-      return ha > hb || (ha === hb && (this.overflowRank[a] as number) < (this.overflowRank[b] as number));
-    };
-    for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heapPush(heap, i, aboveIn);
-    while (heap.length > 0) {
-      const i = heapPop(heap, aboveIn);
+    const heap = new IndexHeap(highs, this.overflowRank);
+    for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heap.push(i);
+    while (heap.size > 0) {
+      const i = heap.pop();
       // a tensor whose tighter bound could still break the budget alone is integrated at once: either answer needs it
-      if (state[i] === 0 && tighten(i) && (highs[i] as number) <= budget) heapPush(heap, i, aboveIn);
+      if (state[i] === 0 && tighten(i) && (highs[i] as number) <= budget) heap.push(i);
       else integrate(i);
       answer = decided();
       if (answer !== undefined) return answer;
@@ -533,40 +529,6 @@ class WindowSearch {
     }
     return edge;
   }
-}
-
-// A binary heap of indices on an array, `above(a, b)` true when a belongs nearer the top; keys may change only
-// while an index is out of the heap.
-function heapPush(heap: number[], i: number, above: (a: number, b: number) => boolean): void {
-  let j = heap.length;
-  heap.push(i);
-  while (j > 0) {
-    const parent = (j - 1) >> 1;
-    if (!above(i, heap[parent] as number)) break;
-    heap[j] = heap[parent] as number;
-    j = parent;
-  }
-  heap[j] = i;
-}
-
-function heapPop(heap: number[], above: (a: number, b: number) => boolean): number {
-  const top = heap[0] as number;
-  const last = heap.pop() as number;
-  const n = heap.length;
-  if (n > 0) {
-    let j = 0;
-    for (;;) {
-      const l = 2 * j + 1;
-      if (l >= n) break;
-      const r = l + 1;
-      const c = r < n && above(heap[r] as number, heap[l] as number) ? r : l;
-      if (!above(heap[c] as number, last)) break;
-      heap[j] = heap[c] as number;
-      j = c;
-    }
-    heap[j] = last;
-  }
-  return top;
 }
 
 // Tensor indices by a key, smallest first (stable): the order in which the searches integrate.

@@ -1,0 +1,36 @@
+import fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import { IndexHeap } from "../../src/scale/heap.js";
+
+// The reference is a plain sort by (key descending, rank ascending): a heap pops in that order (common practice).
+describe("IndexHeap pops the largest key first, ties by rank", () => {
+  it("matches a sort for any keys with ties, by index and by a given rank", () => {
+    fc.assert(
+      fc.property(fc.array(fc.integer({ min: 0, max: 5 }), { maxLength: 60 }), fc.boolean(), (raw, ranked) => {
+        const keys = Float64Array.from(raw, (x) => x / 4);
+        const n = keys.length;
+        const rank = ranked ? Int32Array.from({ length: n }, (_, i) => (i * 7 + 3) % Math.max(1, n)) : null;
+        // a permutation only when 7 is coprime to n: otherwise fall back to indices
+        const rankOf = (i: number): number => (rank !== null && new Set(rank).size === n ? rank[i]! : i);
+        const heap = new IndexHeap(keys, rank !== null && new Set(rank).size === n ? rank : null);
+        for (let i = n - 1; i >= 0; i--) heap.push(i);
+        const popped: number[] = [];
+        while (heap.size > 0) popped.push(heap.pop());
+        const expected = Array.from({ length: n }, (_, i) => i).sort((a, b) => keys[b]! - keys[a]! || rankOf(a) - rankOf(b));
+        expect(popped).toEqual(expected);
+      }),
+    );
+  });
+
+  it("lets a key fall while its index is out of the heap", () => {
+    const keys = Float64Array.from([5, 4, 3]);
+    const heap = new IndexHeap(keys);
+    heap.push(0);
+    heap.push(1);
+    heap.push(2);
+    expect(heap.pop()).toBe(0);
+    keys[0] = 1;
+    heap.push(0);
+    expect([heap.pop(), heap.pop(), heap.pop()]).toEqual([1, 2, 0]);
+  });
+});
