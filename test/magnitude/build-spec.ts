@@ -6,8 +6,23 @@ import type {
   LayerSpec,
   LossSpec,
   NetworkSpec,
+  PrecisionPlan,
   TrainingSpec,
 } from "../../src/spec/types.js";
+
+/** The plan of the built specs: binary16 storage, a binary32 master copy, states and accumulation, no scaling. */
+export const halfPlan: Readonly<PrecisionPlan> = {
+  name: "half",
+  activations: "binary16",
+  weights: "binary16",
+  gradients: "binary16",
+  optimizerStates: "binary32",
+  masterWeights: "binary32",
+  accumulate: "binary32",
+  overflow: "saturate",
+  flushSubnormals: false,
+  scaling: "none",
+};
 
 let counter = 0;
 const path = (): (string | number)[] => ["layers", counter++];
@@ -83,18 +98,7 @@ export function makeSpec(
     description: "built in a test",
     input: options.input ?? features(64),
     training,
-    precision: {
-      name: "half",
-      activations: "binary16",
-      weights: "binary16",
-      gradients: "binary16",
-      optimizerStates: "binary32",
-      masterWeights: "binary32",
-      accumulate: "binary32",
-      overflow: "saturate",
-      flushSubnormals: false,
-      scaling: "none",
-    },
+    precision: { ...halfPlan },
     plans: [],
     blocks: options.blocks ?? {},
     layers,

@@ -9,19 +9,9 @@ import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dy
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import { dynamicModel, profileAt } from "../../src/scale/recommend.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
+import { halfPlan } from "../magnitude/build-spec.js";
 
-const plan: PrecisionPlan = {
-  name: "test",
-  activations: "binary16",
-  weights: "binary16",
-  gradients: "binary16",
-  optimizerStates: "binary32",
-  masterWeights: "binary32",
-  accumulate: "binary32",
-  overflow: "saturate",
-  flushSubnormals: false,
-  scaling: "none",
-};
+const plan: PrecisionPlan = { ...halfPlan, name: "test" };
 
 // Gradients whose rms grows along the horizon by many binades at different rates (as in a deep network whose
 // gradients explode), of several shapes, spreads and sizes: the model's probability runs from tiny to exactly 1.

@@ -2,19 +2,9 @@ import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
 import { lossScaleAnswer } from "../../src/scale/recommend.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
+import { halfPlan } from "../magnitude/build-spec.js";
 
-const plan: PrecisionPlan = {
-  name: "test",
-  activations: "binary16",
-  weights: "binary16",
-  gradients: "binary16",
-  optimizerStates: "binary32",
-  masterWeights: "binary32",
-  accumulate: "binary32",
-  overflow: "saturate",
-  flushSubnormals: false,
-  scaling: "none",
-};
+const plan: PrecisionPlan = { ...halfPlan, name: "test" };
 
 function gradient(id: string, profile: MagnitudeProfile): TensorPrediction {
   return {
