@@ -269,7 +269,9 @@ function tensorFindings(
   const t = options.thresholds;
   const format = limits.format;
   const subject = tensor.id;
-  // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence)
+  // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
+  // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
+  // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed
   const overflow = grade(worst.overflowRisk, t.overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
     const threshold = overflow === "fails" ? t.overflowFails : t.overflowAtRisk;
@@ -282,9 +284,10 @@ function tensorFindings(
       value: worst.overflowRisk,
       threshold,
       at: worst.overflowAt,
-      sentence:
-        `${subject} ${limits.saturates ? "saturates" : "overflows"} ${format} with probability ${plainNumber(worst.overflowRisk)} per step ` +
-        `${when(worst.overflowAt)} (limit ${plainNumber(threshold)}).`,
+      sentence: [
+        subject, limits.saturates ? " saturates " : " overflows ", format, " with probability ", plainNumber(worst.overflowRisk),
+        " per step ", when(worst.overflowAt), " (limit ", plainNumber(threshold), ").",
+      ].join(""),
     });
   } else if (!options.perTensorScaling && worst.headroom !== null && worst.headroom < t.headroomAtRisk) {
     findings.push({
@@ -296,9 +299,10 @@ function tensorFindings(
       value: worst.headroom,
       threshold: t.headroomAtRisk,
       at: worst.overflowAt,
-      sentence:
-        `${subject} has ${binades(worst.headroom)} of headroom in ${format} ${when(worst.overflowAt)}, ` +
-        `so a factor ${plainNumber(2 ** Math.max(0, worst.headroom))} of growth the prediction misses would overflow it.`,
+      sentence: [
+        subject, " has ", binades(worst.headroom), " of headroom in ", format, " ", when(worst.overflowAt),
+        ", so a factor ", plainNumber(2 ** Math.max(0, worst.headroom)), " of growth the prediction misses would overflow it.",
+      ].join(""),
     });
   }
   if (GRADIENT_ROLES.includes(tensor.role)) {
@@ -314,9 +318,10 @@ function tensorFindings(
         value: worst.flushedEnergy,
         threshold,
         at: worst.flushAt,
-        sentence:
-          `${subject} loses ${percent(worst.flushedEnergy)} of its squared norm to zero in ${format} ` +
-          `${when(worst.flushAt)} (limit ${percent(threshold)}).`,
+        sentence: [
+          subject, " loses ", percent(worst.flushedEnergy), " of its squared norm to zero in ", format, " ",
+          when(worst.flushAt), " (limit ", percent(threshold), ").",
+        ].join(""),
       });
     }
   }
@@ -332,9 +337,10 @@ function tensorFindings(
       value: worst.flushedFraction,
       threshold,
       at: worst.flushAt,
-      sentence:
-        `${percent(worst.flushedFraction)} of the nonzero elements of ${subject} round to zero in ` +
-        `${format} ${when(worst.flushAt)} (limit ${percent(threshold)}).`,
+      sentence: [
+        percent(worst.flushedFraction), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
+        when(worst.flushAt), " (limit ", percent(threshold), ").",
+      ].join(""),
     });
   }
   if (worst.subnormalFraction > t.subnormalAtRisk) {
@@ -347,9 +353,10 @@ function tensorFindings(
       value: worst.subnormalFraction,
       threshold: t.subnormalAtRisk,
       at: worst.flushAt,
-      sentence:
-        `${percent(worst.subnormalFraction)} of the nonzero elements of ${subject} are subnormal in ` +
-        `${format}, with fewer significant bits (limit ${percent(t.subnormalAtRisk)}).`,
+      sentence: [
+        percent(worst.subnormalFraction), " of the nonzero elements of ", subject, " are subnormal in ", format,
+        ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
+      ].join(""),
     });
   }
   return findings;
