@@ -3,10 +3,10 @@
  * is judged against the formats of the plan entries that hold its result.
  */
 import type { FormatName } from "../formats/names.js";
-import type { HazardSite } from "../magnitude/types.js";
+import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
 import { elementLaw, overDraws } from "./laws.js";
-import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove, scaleProfile } from "./profile.js";
+import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
@@ -28,21 +28,123 @@ export interface HazardContext {
 }
 
 type HeldIn = HazardEvaluation["heldIn"];
+type Measure = HazardEvaluation["measure"];
 
-interface Draft {
-  format: FormatName;
-  heldIn: HeldIn;
-  measure: HazardEvaluation["measure"];
-  value: number;
-  criticalLevel: number | null;
-  kind: FindingKind;
-  /** thresholds for the value; null: the evaluation has its own verdict */
-  grading: { atRisk: number; fails: number } | null;
-  /** the verdict when grading is null */
-  verdict?: Verdict;
-  /** the severity cannot exceed at-risk (e.g. only an implementation that does not widen would overflow) */
-  capAtRisk?: boolean;
-  sentence: (verdict: Verdict) => string;
+// The wording of each evaluation's sentence, picked by number in `sentenceOf` (a closure per evaluation would be
+// one more object for each, built even for the evaluations the start/end choice drops)
+const SOFTMAX_GUARDED = 0;
+const SOFTMAX_EXP = 1;
+const NORM_SUM = 2;
+const ACCUMULATION_ERROR = 3;
+const ACCUMULATION_OVERFLOW = 4;
+const LOSS_VALUE = 5;
+const GRADIENT_SUM_OVERFLOW = 6;
+const GRADIENT_SUM_FLUSH = 7;
+const EPSILON_KEPT = 8;
+const EPSILON_FLUSHED = 9;
+const SECOND_MOMENT = 10;
+
+/**
+ * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
+ * every field is written each time, and numbers stay numbers (no null) so each write stays in place.
+ */
+class Draft {
+  format: FormatName = "binary32";
+  heldIn: HeldIn = "accumulate";
+  measure: Measure = "overflow-risk";
+  value = 0;
+  /** the critical level; meaningless when `hasCritical` is false (the evaluation reports null) */
+  critical = 0;
+  hasCritical = false;
+  kind: FindingKind = "accumulation-error";
+  verdict: Verdict = "fits";
+  threshold = 0;
+  wording = 0;
+  /** the one number the sentence needs beyond the evaluation (an rms, the optimizer epsilon) */
+  extra = 0;
+  /** the result overflows only where it is kept in the activation format, not widened */
+  notWidened = false;
+}
+
+/** The drafts of one side (start or end) of a site: `count` records of `items` are in use. */
+interface DraftList {
+  items: Draft[];
+  count: number;
+}
+
+// evaluateHazard runs to completion before it is entered again (nothing it calls judges a hazard), so one pair
+// of lists serves every call; it empties them first
+const START: DraftList = { items: [], count: 0 };
+const END: DraftList = { items: [], count: 0 };
+
+function nextDraft(list: DraftList): Draft {
+  let draft = list.items[list.count];
+  if (draft === undefined) {
+    draft = new Draft();
+    list.items.push(draft);
+  }
+  list.count++;
+  return draft;
+}
+
+/**
+ * Add an evaluation graded against thresholds: above `fails` it fails, above `atRisk` it is at risk (NaN fits);
+ * `capAtRisk`: the severity cannot exceed at-risk (e.g. only an implementation that does not widen would overflow),
+ * the threshold reported staying the one passed.
+ */
+function putGraded(
+  list: DraftList,
+  limits: RangeLimits,
+  heldIn: HeldIn,
+  measure: Measure,
+  kind: FindingKind,
+  value: number,
+  critical: number | null,
+  atRisk: number,
+  fails: number,
+  capAtRisk: boolean,
+  wording: number,
+  extra: number,
+  notWidened: boolean,
+): void {
+  let verdict: Verdict = "fits";
+  let threshold = 0;
+  if (value > fails) {
+    verdict = capAtRisk ? "at-risk" : "fails";
+    threshold = fails;
+  } else if (value > atRisk) {
+    verdict = "at-risk";
+    threshold = atRisk;
+  }
+  fill(nextDraft(list), limits.format, heldIn, measure, kind, value, critical, verdict, threshold, wording, extra, notWidened);
+}
+
+function fill(
+  draft: Draft,
+  format: FormatName,
+  heldIn: HeldIn,
+  measure: Measure,
+  kind: FindingKind,
+  value: number,
+  critical: number | null,
+  verdict: Verdict,
+  threshold: number,
+  wording: number,
+  extra: number,
+  notWidened: boolean,
+): void {
+  draft.format = format;
+  draft.heldIn = heldIn;
+  draft.measure = measure;
+  draft.value = value;
+  draft.critical = critical === null ? 0 : critical;
+  draft.hasCritical = critical !== null;
+  draft.kind = kind;
+  draft.verdict = verdict;
+  draft.threshold = threshold;
+  draft.wording = wording;
+  draft.extra = extra;
+  draft.notWidened = notWidened;
 }
 
 /**
@@ -54,34 +156,52 @@ export function evaluateHazard(
   context: HazardContext,
   origin: HazardCheck["origin"] = "prediction",
 ): HazardCheck {
-  const start = draftsFor(site, context).map((draft) => graded(draft, "start"));
-  const end =
-    site.end === undefined
-      ? []
-      : draftsFor({ ...site, input: site.end.input, ...(site.end.output ? { output: site.end.output } : {}) }, context).map(
-          (draft) => graded(draft, "end"),
-        );
+  const start = START;
+  const end = END;
+  start.count = 0;
+  end.count = 0;
+  draftsFor(site, site.input, site.output, context, start);
+  const siteEnd = site.end;
+  const ended = siteEnd !== undefined;
+  if (siteEnd !== undefined) {
+    draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end);
+  }
   const evaluations: HazardEvaluation[] = [];
   const findings: Finding[] = [];
-  start.forEach((first, index) => {
-    const second = end[index];
-    const worse = second !== undefined && isWorse(second, first) ? second : first;
-    evaluations.push(worse.evaluation);
-    if (worse.evaluation.verdict !== "fits") {
+  for (let i = 0; i < start.count; i++) {
+    const first = start.items[i] as Draft;
+    const second = i < end.count ? (end.items[i] as Draft) : undefined;
+    const endWorse = second !== undefined && isWorse(second, first);
+    const worse = endWorse ? second : first;
+    const at = endWorse ? "end" : "start";
+    const verdict = worse.verdict;
+    const sentence = sentenceOf(worse, site, context);
+    evaluations.push({
+      format: worse.format,
+      heldIn: worse.heldIn,
+      measure: worse.measure,
+      value: worse.value,
+      criticalLevel: worse.hasCritical ? worse.critical : null,
+      verdict,
+      at,
+      sentence,
+    });
+    if (verdict !== "fits") {
+      // `at` always present (undefined for a site without an end, which JSON leaves out): one layout
       findings.push({
         kind: worse.kind,
-        severity: worse.evaluation.verdict as Finding["severity"],
-        format: worse.evaluation.format,
+        severity: verdict,
+        format: worse.format,
         subject: site.layer,
         source: "hazard",
-        value: worse.evaluation.value,
+        value: worse.value,
         threshold: worse.threshold,
-        ...(site.end !== undefined ? { at: worse.evaluation.at } : {}),
-        sentence: worse.evaluation.sentence,
+        at: ended ? at : undefined,
+        sentence,
       });
     }
-  });
-  const check: HazardCheck = {
+  }
+  return {
     kind: site.kind,
     layer: site.layer,
     detail: site.detail,
@@ -91,53 +211,17 @@ export function evaluateHazard(
     origin,
     evaluations,
     findings,
+    constant: site.constant,
   };
-  if (site.constant !== undefined) check.constant = site.constant;
-  return check;
 }
 
-const VERDICT_RANK: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
-
-function isWorse(a: Graded, b: Graded): boolean {
-  const rank = VERDICT_RANK[a.evaluation.verdict] - VERDICT_RANK[b.evaluation.verdict];
-  return rank > 0 || (rank === 0 && a.evaluation.value > b.evaluation.value);
+function verdictRank(verdict: Verdict): number {
+  return verdict === "fails" ? 2 : verdict === "at-risk" ? 1 : 0;
 }
 
-interface Graded {
-  evaluation: HazardEvaluation;
-  kind: FindingKind;
-  threshold: number;
-}
-
-function graded(draft: Draft, at: "start" | "end"): Graded {
-  let verdict: Verdict = draft.verdict ?? "fits";
-  let threshold = 0;
-  if (draft.grading !== null) {
-    if (draft.value > draft.grading.fails) {
-      verdict = "fails";
-      threshold = draft.grading.fails;
-    } else if (draft.value > draft.grading.atRisk) {
-      verdict = "at-risk";
-      threshold = draft.grading.atRisk;
-    } else {
-      verdict = "fits";
-    }
-  }
-  if (draft.capAtRisk && verdict === "fails") verdict = "at-risk";
-  return {
-    evaluation: {
-      format: draft.format,
-      heldIn: draft.heldIn,
-      measure: draft.measure,
-      value: draft.value,
-      criticalLevel: draft.criticalLevel,
-      verdict,
-      at,
-      sentence: draft.sentence(verdict),
-    },
-    kind: draft.kind,
-    threshold,
-  };
+function isWorse(a: Draft, b: Draft): boolean {
+  const rank = verdictRank(a.verdict) - verdictRank(b.verdict);
+  return rank > 0 || (rank === 0 && a.value > b.value);
 }
 
 /** The worst verdict of a hazard check. */
@@ -145,89 +229,150 @@ export function hazardVerdict(check: HazardCheck): Verdict {
   return worstVerdict(check.findings);
 }
 
-function draftsFor(site: HazardSite, context: HazardContext): Draft[] {
+function draftsFor(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
   switch (site.kind) {
     case "softmax-exp":
-      return softmaxExp(site, context);
+      return softmaxExp(site, input, context, list);
     case "norm-sum-of-squares":
-      return normSumOfSquares(site, context);
+      return normSumOfSquares(site, input, context, list);
     case "accumulation":
-      return accumulation(site, context);
+      return accumulation(site, input, context, list);
     case "loss-value":
-      return lossValue(site, context);
+      return lossValue(site, input, context, list);
     case "gradient-sum":
-      return gradientSum(site, context);
+      return gradientSum(site, input, output, context, list);
     case "optimizer-constant":
-      return optimizerConstant(site, context);
+      return optimizerConstant(site, input, context, list);
   }
 }
 
-function overflowGrading(t: RiskThresholds): { atRisk: number; fails: number } {
-  return { atRisk: t.overflowAtRisk, fails: t.overflowFails };
-}
-
 function verdictWord(verdict: Verdict): string {
-  return verdict === "fails" ? "fails" : verdict === "at-risk" ? "at risk" : "fits";
+  return verdict === "fits" ? "fits" : verdict === "at-risk" ? "at risk" : "fails";
 }
 
-/** The formats a result may be held in: the activation format and the accumulate format, once each. */
-function heldInBoth(context: HazardContext): { limits: RangeLimits; heldIn: HeldIn; onlyIfNotWidened: boolean }[] {
-  const accumulate = { limits: context.accumulate, heldIn: "accumulate" as const, onlyIfNotWidened: false };
-  if (context.activations.format === context.accumulate.format) return [accumulate];
-  return [{ limits: context.activations, heldIn: "activations", onlyIfNotWidened: true }, accumulate];
+// The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest.
+function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): string {
+  const format = draft.format;
+  const value = draft.value;
+  const verdict = draft.verdict;
+  switch (draft.wording) {
+    case SOFTMAX_GUARDED:
+      return value > 0
+        ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator sums ${site.terms} terms, ` +
+            `more than ${format} holds (${plainNumber(draft.critical)}).`
+        : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow ${format}.`;
+    case SOFTMAX_EXP:
+      return (
+        `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
+        `above ${plainNumber(draft.critical)}, reached with probability ${plainNumber(value)} per step ` +
+        `(${verdictWord(verdict)}).`
+      );
+    case NORM_SUM:
+      return (
+        `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
+        `input rms exceeds ${plainNumber(draft.critical)} (predicted ${plainNumber(draft.extra)}); probability ` +
+        `${plainNumber(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
+        `(${verdictWord(verdict)}).`
+      );
+    case ACCUMULATION_ERROR:
+      return (
+        `${site.layer} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about ` +
+        `√n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`
+      );
+    case ACCUMULATION_OVERFLOW:
+      return (
+        `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
+        `${plainNumber(value)} per step (${verdictWord(verdict)}).`
+      );
+    case LOSS_VALUE:
+      return (
+        `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
+        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(draft.critical)} ` +
+        `(predicted ${plainNumber(draft.extra)}); probability ${plainNumber(value)} per step` +
+        `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
+      );
+    case GRADIENT_SUM_OVERFLOW:
+      return (
+        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${site.layer} (rms ${plainNumber(draft.extra)} after the loss ` +
+        `scale) overflows ${format} with probability ${plainNumber(value)} per step (${verdictWord(verdict)}).`
+      );
+    case GRADIENT_SUM_FLUSH:
+      return (
+        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, a further ` +
+        `${percent(value)} of their squared norm flushes in ${format} (${verdictWord(verdict)}).`
+      );
+    case EPSILON_KEPT:
+      return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
+    case EPSILON_FLUSHED:
+      return (
+        `The optimizer epsilon ${plainNumber(draft.extra)} rounds to zero in ${format}` +
+        (value >= 1
+          ? `, and about ${plainNumber(value)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
+          : `; an update divides by zero wherever a second moment is zero.`)
+      );
+    default:
+      return (
+        `The second moment (1 − β2)·g² of ${site.layer} flushes in ${format} for gradients below ` +
+        `${plainNumber(draft.critical)}: ${percent(value)} of its elements (${verdictWord(verdict)}).`
+      );
+  }
+}
+
+// A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), laid out as magnitude/profile.ts's
+// profileOf literal (every key, absent ones undefined, in its order), so the functions that read it see one layout.
+function scaledProfile(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
+  if (factor === 1) return profile;
+  return profileCopy(profile, profile.elements, profile.zeroFraction, factor);
+}
+
+function profileCopy(profile: MagnitudeProfile, elements: number, zeroFraction: number, factor: number): MagnitudeProfile {
+  const bound = profile.bound;
+  return {
+    elements,
+    zeroFraction,
+    shape: profile.shape,
+    rms: profile.rms * factor,
+    log2Spread: profile.log2Spread,
+    meanSquare: profile.meanSquare,
+    maxElement: profile.maxElement,
+    bound: bound !== undefined ? bound * factor : undefined,
+    elementLog2Spread: profile.elementLog2Spread,
+    sampleCorrelation: profile.sampleCorrelation,
+    positionCorrelation: profile.positionCorrelation,
+    coherentRms: profile.coherentRms,
+  };
 }
 
 // exp(x) overflows where x ≥ ln(overflow level): ln 65520 = 11.0901 in binary16 (SCIENCE.md §4). With the row
 // maximum subtracted each term is at most 1 and only the denominator (one term per key) can overflow.
-function softmaxExp(site: HazardSite, context: HazardContext): Draft[] {
+function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const limits = context.activations;
+  const t = context.thresholds;
   if (site.guarded) {
     const value = site.terms >= limits.overflowLevel ? 1 : 0;
-    return [
-      {
-        format: limits.format,
-        heldIn: "activations",
-        measure: "overflow-risk",
-        value,
-        criticalLevel: limits.overflowLevel,
-        kind: "softmax-sum-overflow",
-        grading: overflowGrading(context.thresholds),
-        sentence: () =>
-          value > 0
-            ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator sums ${site.terms} terms, ` +
-              `more than ${limits.format} holds (${plainNumber(limits.overflowLevel)}).`
-            : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow ${limits.format}.`,
-      },
-    ];
+    putGraded(list, limits, "activations", "overflow-risk", "softmax-sum-overflow", value, limits.overflowLevel,
+      t.overflowAtRisk, t.overflowFails, false, SOFTMAX_GUARDED, 0, false);
+    return;
   }
   const critical = Math.log(limits.overflowLevel);
-  const value = probabilityAnyAbove(site.input, critical, true);
-  return [
-    {
-      format: limits.format,
-      heldIn: "activations",
-      measure: "overflow-risk",
-      value,
-      criticalLevel: critical,
-      kind: "softmax-exp-overflow",
-      grading: overflowGrading(context.thresholds),
-      sentence: (verdict) =>
-        `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${limits.format} for logits ` +
-        `above ${plainNumber(critical)}, reached with probability ${plainNumber(value)} per step ` +
-        `(${verdictWord(verdict)}).`,
-    },
-  ];
+  const value = probabilityAnyAbove(input, critical, true);
+  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", value, critical,
+    t.overflowAtRisk, t.overflowFails, false, SOFTMAX_EXP, 0, false);
 }
 
 // A row's sum of squares S = Σ x_i² over N features has mean N·r² and variance N·(κ − 1)·r⁴ (κ the element
 // kurtosis); by the central limit theorem S is close to normal. It overflows once r > √(max/N)
 // (DESIGN.md §5 item 7: 4.0 at N = 4096 in binary16). Rows are independent; the scale spreads over draws.
-function normSumOfSquares(site: HazardSite, context: HazardContext): Draft[] {
-  const profile = site.input;
+// The result is held in the activation format and the accumulate format (once when they are one format); only
+// an implementation that does not widen keeps it in the activation format, so that case is at most at risk.
+function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const law = elementLaw(profile);
   const features = Math.max(1, site.terms * (1 - profile.zeroFraction));
   const rows = Math.max(1, profile.elements / Math.max(1, site.terms));
-  return heldInBoth(context).map(({ limits, heldIn, onlyIfNotWidened }) => {
+  const t = context.thresholds;
+  const first = context.activations.format === context.accumulate.format ? 1 : 0;
+  for (let k = first; k < 2; k++) {
+    const limits = k === 0 ? context.activations : context.accumulate;
     const level = limits.overflowLevel;
     const criticalRms = Math.sqrt(level / features);
     const value =
@@ -239,22 +384,9 @@ function normSumOfSquares(site: HazardSite, context: HazardContext): Draft[] {
             return anyOf(perRow, rows);
           })
         : 0;
-    return {
-      format: limits.format,
-      heldIn,
-      measure: "overflow-risk" as const,
-      value,
-      criticalLevel: criticalRms,
-      kind: "norm-sum-overflow" as const,
-      grading: overflowGrading(context.thresholds),
-      capAtRisk: onlyIfNotWidened,
-      sentence: (verdict: Verdict) =>
-        `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${limits.format} once the ` +
-        `input rms exceeds ${plainNumber(criticalRms)} (predicted ${plainNumber(profile.rms)}); probability ` +
-        `${plainNumber(value)} per step${onlyIfNotWidened ? " if the statistics are kept in the activation format" : ""} ` +
-        `(${verdictWord(verdict)}).`,
-    };
-  });
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", value, criticalRms,
+      t.overflowAtRisk, t.overflowFails, k === 0, NORM_SUM, profile.rms, k === 0);
+  }
 }
 
 // Rounding error of an n-term sum in a format with unit roundoff u: about √n·u for terms of random sign
@@ -262,9 +394,8 @@ function normSumOfSquares(site: HazardSite, context: HazardContext): Draft[] {
 // Accuracy and Stability of Numerical Algorithms, §4.2; from memory, unconfirmed). Partial sums of
 // random-sign terms are close to N(0, n·r²), and by the reflection principle their running maximum passes a
 // level at most twice as often as the final sum; terms of one sign add up to about n·r.
-function accumulation(site: HazardSite, context: HazardContext): Draft[] {
+function accumulation(site: HazardSite, profile: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const limits = context.accumulate;
-  const profile = site.input;
   const terms = Math.max(1, site.terms);
   const error = Math.sqrt(terms) * limits.unitRoundoff;
   const t = context.thresholds;
@@ -281,159 +412,70 @@ function accumulation(site: HazardSite, context: HazardContext): Draft[] {
           return anyOf(perOutput, outputs);
         })
       : 0;
-  return [
-    {
-      format: limits.format,
-      heldIn: "accumulate",
-      measure: "relative-error",
-      value: error,
-      criticalLevel: null,
-      kind: "accumulation-error",
-      grading: { atRisk: t.accumulationAtRisk, fails: t.accumulationFails },
-      sentence: (verdict) =>
-        `${site.layer} accumulates ${terms} terms in ${limits.format}: relative rounding error about ` +
-        `√n·u = ${plainNumber(error)} (${verdictWord(verdict)}).`,
-    },
-    {
-      format: limits.format,
-      heldIn: "accumulate",
-      measure: "overflow-risk",
-      value: overflow,
-      criticalLevel: coherent ? level / terms : level / Math.sqrt(terms),
-      kind: "accumulation-overflow",
-      grading: overflowGrading(t),
-      sentence: (verdict) =>
-        `The partial sums of ${site.layer} reach the ${limits.format} overflow threshold with probability ` +
-        `${plainNumber(overflow)} per step (${verdictWord(verdict)}).`,
-    },
-  ];
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", error, null,
+    t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),
+    t.overflowAtRisk, t.overflowFails, false, ACCUMULATION_OVERFLOW, 0, false);
 }
 
-// The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction).
-function lossValue(site: HazardSite, context: HazardContext): Draft[] {
-  const total = scaleProfile({ ...site.input, elements: 1, zeroFraction: 0 }, Math.max(1, site.terms) * context.lossScale);
-  return heldInBoth(context).map(({ limits, heldIn, onlyIfNotWidened }) => {
+// The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction); held in
+// the activation and the accumulate format as the sum of squares above.
+function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardContext, list: DraftList): void {
+  const total = profileCopy(input, 1, 0, Math.max(1, site.terms) * context.lossScale);
+  const t = context.thresholds;
+  const first = context.activations.format === context.accumulate.format ? 1 : 0;
+  for (let k = first; k < 2; k++) {
+    const limits = k === 0 ? context.activations : context.accumulate;
     const value = probabilityAnyAbove(total, limits.overflowLevel);
     const critical = limits.overflowLevel / (Math.max(1, site.terms) * context.lossScale);
-    return {
-      format: limits.format,
-      heldIn,
-      measure: "overflow-risk" as const,
-      value,
-      criticalLevel: critical,
-      kind: "loss-value-overflow" as const,
-      grading: overflowGrading(context.thresholds),
-      capAtRisk: onlyIfNotWidened,
-      sentence: (verdict: Verdict) =>
-        `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${scaleWords(context.lossScale)}) overflows ${limits.format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(critical)} ` +
-        `(predicted ${plainNumber(site.input.rms)}); probability ${plainNumber(value)} per step` +
-        `${onlyIfNotWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`,
-    };
-  });
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", value, critical,
+      t.overflowAtRisk, t.overflowFails, k === 0, LOSS_VALUE, input.rms, k === 0);
+  }
 }
 
 // Gradients summed over `terms` worker-and-step contributions: the engine's predicted sum (`output`) when it
 // gives one, otherwise `terms` times one contribution (coherent parts add linearly: the worst case). When
 // gradients are averaged, an implementation that divides each worker's gradient by the worker count before
 // the sum moves small values down by that factor instead (DESIGN.md §5 item 9); that is judged as a risk only.
-function gradientSum(site: HazardSite, context: HazardContext): Draft[] {
+function gradientSum(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
   const limits = context.gradients;
   const t = context.thresholds;
   const terms = Math.max(1, site.terms);
-  const summed = site.output !== undefined ? scaleProfile(site.output, context.lossScale) : scaleProfile(site.input, context.lossScale * terms);
+  const summed = output !== undefined ? scaledProfile(output, context.lossScale) : scaledProfile(input, context.lossScale * terms);
   const overflow = probabilityAnyAbove(summed, limits.overflowLevel);
-  const drafts: Draft[] = [
-    {
-      format: limits.format,
-      heldIn: "gradients",
-      measure: "overflow-risk",
-      value: overflow,
-      criticalLevel: limits.overflowLevel / context.lossScale,
-      kind: "gradient-sum-overflow",
-      grading: overflowGrading(t),
-      sentence: (verdict) =>
-        `The sum of ${terms} gradient contributions of ${site.layer} (rms ${plainNumber(summed.rms)} after the loss ` +
-        `scale) overflows ${limits.format} with probability ${plainNumber(overflow)} per step (${verdictWord(verdict)}).`,
-    },
-  ];
+  putGraded(list, limits, "gradients", "overflow-risk", "gradient-sum-overflow", overflow, limits.overflowLevel / context.lossScale,
+    t.overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
   if (context.workerGradients === "average" && context.workers > 1) {
-    const scaled = scaleProfile(site.input, context.lossScale);
-    const divided = scaleProfile(scaled, 1 / context.workers);
+    const scaled = scaledProfile(input, context.lossScale);
+    const divided = scaledProfile(scaled, 1 / context.workers);
     const lost = Math.max(0, energyBelow(divided, limits.flushBound) - energyBelow(scaled, limits.flushBound));
-    drafts.push({
-      format: limits.format,
-      heldIn: "gradients",
-      measure: "flushed-energy",
-      value: lost,
-      criticalLevel: limits.flushBound * context.workers,
-      kind: "gradient-sum-flush",
-      grading: { atRisk: t.energyAtRisk, fails: t.energyFails },
-      capAtRisk: true,
-      sentence: (verdict) =>
-        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, a further ` +
-        `${percent(lost)} of their squared norm flushes in ${limits.format} (${verdictWord(verdict)}).`,
-    });
+    putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, limits.flushBound * context.workers,
+      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
-  return drafts;
 }
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
 // is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero. The stored second
 // moment itself flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with β2 = 0.999 (DESIGN.md §5
 // item 5). The input is the gradient profile, without the loss scale (removed before the optimizer).
-function optimizerConstant(site: HazardSite, context: HazardContext): Draft[] {
+function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const limits = context.optimizerStates;
   const t = context.thresholds;
-  const gradient = site.input;
   // (1 − β2)·g² ≤ flush bound  ⇔  |g| ≤ √(flush bound / (1 − β2))
   const gradientBound = Math.sqrt(limits.flushBound / Math.max(1e-300, 1 - context.beta2));
   const flushedShare = gradient.rms > 0 ? fractionBelow(gradient, gradientBound) : 0;
-  const drafts: Draft[] = [];
   const epsilon = site.constant;
   if (epsilon !== undefined) {
+    // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step
     if (epsilon > limits.flushBound) {
-      drafts.push({
-        format: limits.format,
-        heldIn: "optimizerStates",
-        measure: "zero-second-moments",
-        value: 0,
-        criticalLevel: limits.flushBound,
-        kind: "optimizer-epsilon-flushed",
-        grading: null,
-        verdict: "fits",
-        sentence: () => `The optimizer epsilon ${plainNumber(epsilon)} stays nonzero in ${limits.format}.`,
-      });
+      fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
+        "fits", 0, EPSILON_KEPT, epsilon, false);
     } else {
       const zeros = gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedShare;
-      drafts.push({
-        format: limits.format,
-        heldIn: "optimizerStates",
-        measure: "zero-second-moments",
-        value: zeros,
-        criticalLevel: limits.flushBound,
-        kind: "optimizer-epsilon-flushed",
-        grading: null,
-        verdict: zeros >= 1 ? "fails" : "at-risk",
-        sentence: () =>
-          `The optimizer epsilon ${plainNumber(epsilon)} rounds to zero in ${limits.format}` +
-          (zeros >= 1
-            ? `, and about ${plainNumber(zeros)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
-            : `; an update divides by zero wherever a second moment is zero.`),
-      });
+      fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
+        zeros >= 1 ? "fails" : "at-risk", 0, EPSILON_FLUSHED, epsilon, false);
     }
   }
-  drafts.push({
-    format: limits.format,
-    heldIn: "optimizerStates",
-    measure: "flushed-share",
-    value: flushedShare,
-    criticalLevel: gradientBound,
-    kind: "second-moment-flushed",
-    grading: { atRisk: t.flushedAtRisk, fails: t.flushedFails },
-    sentence: (verdict) =>
-      `The second moment (1 − β2)·g² of ${site.layer} flushes in ${limits.format} for gradients below ` +
-      `${plainNumber(gradientBound)}: ${percent(flushedShare)} of its elements (${verdictWord(verdict)}).`,
-  });
-  return drafts;
+  putGraded(list, limits, "optimizerStates", "flushed-share", "second-moment-flushed", flushedShare, gradientBound,
+    t.flushedAtRisk, t.flushedFails, false, SECOND_MOMENT, 0, false);
 }
