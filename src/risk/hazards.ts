@@ -46,22 +46,22 @@ const SECOND_MOMENT = 10;
 
 /**
  * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
- * every field is written each time, and numbers stay numbers (no null) so each write stays in place.
+ * every field is written each time; number fields start as non-integers so they are doubles from the first write.
  */
 class Draft {
   format: FormatName = "binary32";
   heldIn: HeldIn = "accumulate";
   measure: Measure = "overflow-risk";
-  value = 0;
-  /** the critical level; meaningless when `hasCritical` is false (the evaluation reports null) */
-  critical = 0;
-  hasCritical = false;
+  value = Number.NaN;
+  /** tagged (numbers and null) as in the evaluation it is copied to: a number field would be unboxed on load and
+   * then boxed as a small integer, which the evaluation's field does not expect (a deopt) */
+  criticalLevel: number | null = null;
   kind: FindingKind = "accumulation-error";
   verdict: Verdict = "fits";
-  threshold = 0;
+  threshold = Number.NaN;
   wording = 0;
   /** the one number the sentence needs beyond the evaluation (an rms, the optimizer epsilon) */
-  extra = 0;
+  extra = Number.NaN;
   /** the result overflows only where it is kept in the activation format, not widened */
   notWidened = false;
 }
@@ -137,8 +137,7 @@ function fill(
   draft.heldIn = heldIn;
   draft.measure = measure;
   draft.value = value;
-  draft.critical = critical === null ? 0 : critical;
-  draft.hasCritical = critical !== null;
+  draft.criticalLevel = critical;
   draft.kind = kind;
   draft.verdict = verdict;
   draft.threshold = threshold;
@@ -181,7 +180,7 @@ export function evaluateHazard(
       heldIn: worse.heldIn,
       measure: worse.measure,
       value: worse.value,
-      criticalLevel: worse.hasCritical ? worse.critical : null,
+      criticalLevel: worse.criticalLevel,
       verdict,
       at,
       sentence,
@@ -259,18 +258,18 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case SOFTMAX_GUARDED:
       return value > 0
         ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator sums ${site.terms} terms, ` +
-            `more than ${format} holds (${plainNumber(draft.critical)}).`
+            `more than ${format} holds (${plainNumber(draft.criticalLevel as number)}).`
         : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow ${format}.`;
     case SOFTMAX_EXP:
       return (
         `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
-        `above ${plainNumber(draft.critical)}, reached with probability ${plainNumber(value)} per step ` +
+        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${plainNumber(value)} per step ` +
         `(${verdictWord(verdict)}).`
       );
     case NORM_SUM:
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
-        `input rms exceeds ${plainNumber(draft.critical)} (predicted ${plainNumber(draft.extra)}); probability ` +
+        `input rms exceeds ${plainNumber(draft.criticalLevel as number)} (predicted ${plainNumber(draft.extra)}); probability ` +
         `${plainNumber(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`
       );
@@ -287,7 +286,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case LOSS_VALUE:
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(draft.critical)} ` +
+        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(draft.criticalLevel as number)} ` +
         `(predicted ${plainNumber(draft.extra)}); probability ${plainNumber(value)} per step` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
@@ -313,7 +312,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     default:
       return (
         `The second moment (1 − β2)·g² of ${site.layer} flushes in ${format} for gradients below ` +
-        `${plainNumber(draft.critical)}: ${percent(value)} of its elements (${verdictWord(verdict)}).`
+        `${plainNumber(draft.criticalLevel as number)}: ${percent(value)} of its elements (${verdictWord(verdict)}).`
       );
   }
 }

@@ -229,3 +229,42 @@ describe("one site judged under several plans", () => {
     expect(second.evaluations[0]).not.toBe(first.evaluations[0]);
   });
 });
+
+describe("one layout for every result", () => {
+  // sites of every kind, some with an end, under plans that give one, two and three evaluations per site
+  const input = profile({ rms: 2, log2Spread: 1, elements: 65536, bound: 40 });
+  const end = { input: profile({ rms: 900, log2Spread: 1, elements: 65536 }) };
+  const sites: HazardSite[] = [
+    site({ kind: "softmax-exp", input, terms: 64 }),
+    site({ kind: "softmax-exp", input, terms: 70000, guarded: true, end }),
+    site({ kind: "norm-sum-of-squares", input, terms: 4096, end }),
+    site({ kind: "accumulation", input, terms: 1 << 20 }),
+    site({ kind: "loss-value", layer: "loss", input, terms: 8, end }),
+    site({ kind: "gradient-sum", input, terms: 4, output: profile({ rms: 1e5, elements: 65536 }), end }),
+    site({ kind: "optimizer-constant", input: profile({ rms: 1e-3, log2Spread: 1, elements: 65536 }), constant: 1e-8 }),
+    site({ kind: "optimizer-constant", input, constant: 0.5, end }),
+  ];
+  const plans = [context(), context({ accumulate: BINARY16, workerGradients: "average", workers: 8, lossScale: 1024 })];
+
+  it("gives every evaluation, finding and check the same keys in the same order, with or without an end", () => {
+    const keys = (o: object) => Object.keys(o).join(",");
+    const checks = plans.flatMap((plan) => sites.map((s) => evaluateHazard(s, plan)));
+    expect(new Set(checks.map(keys)).size).toBe(1);
+    expect(new Set(checks.flatMap((c) => c.evaluations.map(keys))).size).toBe(1);
+    const findings = checks.flatMap((c) => c.findings);
+    expect(findings.length).toBeGreaterThan(3);
+    expect(new Set(findings.map(keys)).size).toBe(1);
+    // JSON still leaves out what a site does not have: `at` without an end, `constant` without a constant
+    expect(JSON.parse(JSON.stringify(checks[0]))).not.toHaveProperty("constant");
+    checks.forEach((c, i) => {
+      const ended = sites[i % sites.length]?.end !== undefined;
+      for (const f of c.findings) expect("at" in JSON.parse(JSON.stringify(f))).toBe(ended);
+    });
+  });
+
+  it("gives a site the same result whatever was judged before it (the working records are reused)", () => {
+    const forward = sites.map((s) => JSON.stringify(evaluateHazard(s, plans[1]!)));
+    const reversed = [...sites].reverse().map((s) => JSON.stringify(evaluateHazard(s, plans[1]!))).reverse();
+    expect(reversed).toEqual(forward);
+  });
+});
