@@ -325,6 +325,9 @@ function judgeTensors(
   return tensors;
 }
 
+// the format risks of the tensor being judged (its first entries), before they are copied out
+const RISKS: TensorFormatRisk[] = [];
+
 function judgeTensor(
   tensor: TensorPrediction,
   settings: readonly FormatSetting[],
@@ -336,16 +339,19 @@ function judgeTensor(
   // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
   // FP32); the loss-value hazard covers a loss kept in the activation format
   const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
-  const risks: TensorFormatRisk[] = [];
+  // gathered in RISKS and copied out at their exact length: the result keeps one such array per tensor, and one
+  // grown by push carries room for 17 elements
+  let count = 0;
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
     const judged = setting.evaluated[entry] === setting.format;
     if (!judged && !everyFormat) continue;
     const risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
-    risks.push(risk);
+    RISKS[count++] = risk;
     verdict = worseVerdict(verdict, risk.verdict);
   }
+  const risks = RISKS.slice(0, count);
   return {
     id: tensor.id,
     layer: tensor.layer,
@@ -373,6 +379,9 @@ function hazardContexts(spec: NetworkSpec, settings: readonly FormatSetting[], l
   return contexts;
 }
 
+const SITE_EVALUATIONS: HazardEvaluation[] = [];
+const SITE_FINDINGS: Finding[] = [];
+
 // One operation site: each judged format sees it under its own plan; keep the evaluations in that format.
 function judgeSite(
   site: HazardSite,
@@ -389,21 +398,22 @@ function judgeSite(
     perFormat.push(shared === i ? evaluateHazard(site, contexts[i] as HazardContext, origin) : (perFormat[shared] as HazardCheck));
   }
   const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, spec.precision, lossScale, thresholds), origin);
-  const evaluations: HazardEvaluation[] = [];
-  const findings: Finding[] = [];
+  // gathered in SITE_EVALUATIONS and SITE_FINDINGS and copied out at their exact length, as a tensor's risks are
+  let evaluationCount = 0;
+  let findingCount = 0;
   for (let i = 0; i < perFormat.length; i++) {
     const format = (settings[i] as FormatSetting).format;
     const c = perFormat[i] as HazardCheck;
     for (let j = 0; j < c.evaluations.length; j++) {
       const e = c.evaluations[j] as HazardEvaluation;
-      if (e.format === format) evaluations.push(e);
+      if (e.format === format) SITE_EVALUATIONS[evaluationCount++] = e;
     }
     for (let j = 0; j < c.findings.length; j++) {
       const f = c.findings[j] as Finding;
-      if (f.format === format) findings.push(f);
+      if (f.format === format) SITE_FINDINGS[findingCount++] = f;
     }
   }
-  return siteCheck(first, evaluations, findings);
+  return siteCheck(first, SITE_EVALUATIONS.slice(0, evaluationCount), SITE_FINDINGS.slice(0, findingCount));
 }
 
 // `{ ...first, evaluations, findings }`, by literals: the keys of evaluateHazard's result in its order

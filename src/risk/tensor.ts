@@ -257,15 +257,21 @@ function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "
   return null;
 }
 
+// the findings of the tensor being judged (its first entries), before they are copied out
+const FOUND: Finding[] = [];
+
 function tensorFindings(
   tensor: TensorPrediction,
   limits: RangeLimits,
   worst: WorstRisk,
   options: TensorRiskOptions,
 ): Finding[] {
-  // one allocation site for every tensor's findings, judged or not: the arrays share one elements kind
-  const findings: Finding[] = [];
-  if (!options.judged) return findings;
+  // gathered in FOUND, then copied out at their exact length (one allocation site for every tensor's findings,
+  // judged or not, so the arrays share one elements kind): the result keeps thousands of these arrays, and one
+  // grown by push carries room for 17 elements
+  if (!options.judged) return FOUND.slice(0, 0);
+  const findings = FOUND;
+  let found = 0;
   const t = options.thresholds;
   const format = limits.format;
   const subject = tensor.id;
@@ -275,7 +281,7 @@ function tensorFindings(
   const overflow = grade(worst.overflowRisk, t.overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
     const threshold = overflow === "fails" ? t.overflowFails : t.overflowAtRisk;
-    findings.push({
+    findings[found++] = {
       format,
       subject,
       source: "tensor",
@@ -288,9 +294,9 @@ function tensorFindings(
         subject, limits.saturates ? " saturates " : " overflows ", format, " with probability ", plainNumber(worst.overflowRisk),
         " per step ", when(worst.overflowAt), " (limit ", plainNumber(threshold), ").",
       ].join(""),
-    });
+    };
   } else if (!options.perTensorScaling && worst.headroom !== null && worst.headroom < t.headroomAtRisk) {
-    findings.push({
+    findings[found++] = {
       format,
       subject,
       source: "tensor",
@@ -303,13 +309,13 @@ function tensorFindings(
         subject, " has ", binades(worst.headroom), " of headroom in ", format, " ", when(worst.overflowAt),
         ", so a factor ", plainNumber(2 ** Math.max(0, worst.headroom)), " of growth the prediction misses would overflow it.",
       ].join(""),
-    });
+    };
   }
   if (GRADIENT_ROLES.includes(tensor.role)) {
     const energy = grade(worst.flushedEnergy, t.energyAtRisk, t.energyFails);
     if (energy !== null) {
       const threshold = energy === "fails" ? t.energyFails : t.energyAtRisk;
-      findings.push({
+      findings[found++] = {
         format,
         subject,
         source: "tensor",
@@ -322,13 +328,13 @@ function tensorFindings(
           subject, " loses ", percent(worst.flushedEnergy), " of its squared norm to zero in ", format, " ",
           when(worst.flushAt), " (limit ", percent(threshold), ").",
         ].join(""),
-      });
+      };
     }
   }
   const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;
-    findings.push({
+    findings[found++] = {
       format,
       subject,
       source: "tensor",
@@ -341,10 +347,10 @@ function tensorFindings(
         percent(worst.flushedFraction), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
         when(worst.flushAt), " (limit ", percent(threshold), ").",
       ].join(""),
-    });
+    };
   }
   if (worst.subnormalFraction > t.subnormalAtRisk) {
-    findings.push({
+    findings[found++] = {
       format,
       subject,
       source: "tensor",
@@ -357,7 +363,7 @@ function tensorFindings(
         percent(worst.subnormalFraction), " of the nonzero elements of ", subject, " are subnormal in ", format,
         ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
       ].join(""),
-    });
+    };
   }
-  return findings;
+  return findings.slice(0, found);
 }
