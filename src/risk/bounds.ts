@@ -5,7 +5,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
-import { elementLaw, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements, type ElementLaw } from "./laws.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
 
 /**
@@ -56,14 +56,15 @@ const SEGMENT_LIMIT = 9;
 const MASS_ABOVE = Array.from({ length: 2 * SEGMENT_LIMIT + 1 }, (_, j) => normalSf(j - SEGMENT_LIMIT));
 
 // Σ over unit segments of the draws of mass × the integrand at the segment's larger-valued end; `rising`: the
-// integrand grows with the draw (visited from +9 down), else it falls (visited from −9 up).
-function segmentBound(profile: MagnitudeProfile, rising: boolean, f: (r: number) => number): number {
+// integrand grows with the draw (visited from +9 down), else it falls (visited from −9 up). The integrand is the
+// law's any-of-n-above at t (`anyAbove`) or its energy below t, picked here rather than by a closure per call.
+function segmentBound(profile: MagnitudeProfile, rising: boolean, law: ElementLaw, t: number, n: number, anyAbove: boolean): number {
   const step = 2 ** profile.log2Spread;
   // beyond ±9 the integrand is at most 1
   let sum = MASS_ABOVE[2 * SEGMENT_LIMIT]!;
   let r = profile.rms * 2 ** (profile.log2Spread * (rising ? SEGMENT_LIMIT : -SEGMENT_LIMIT));
   for (let j = 2 * SEGMENT_LIMIT; j > 0; j--) {
-    const value = f(r);
+    const value = anyAbove ? anyOf(law.above(r, t), n) : law.energyBelow(r, t);
     // the segment next to the end just evaluated, toward the small end: mass P(j − 10 < |z| beyond …) by symmetry
     const mass = MASS_ABOVE[j - 1]! - MASS_ABOVE[j]!;
     sum += mass * value;
@@ -82,9 +83,7 @@ function segmentBound(profile: MagnitudeProfile, rising: boolean, f: (r: number)
  */
 export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return probabilityAnyAbove(profile, t);
-  const law = elementLaw(profile);
-  const n = nonzeroElements(profile);
-  return segmentBound(profile, true, (r) => anyOf(law.above(r, t), n));
+  return segmentBound(profile, true, elementLaw(profile), t, nonzeroElements(profile), true);
 }
 
 /**
@@ -93,6 +92,5 @@ export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): 
  */
 export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return energyBelow(profile, t);
-  const law = elementLaw(profile);
-  return segmentBound(profile, false, (r) => law.energyBelow(r, t));
+  return segmentBound(profile, false, elementLaw(profile), t, 0, false);
 }
