@@ -193,6 +193,19 @@ describe("judgePrediction", () => {
     expect(new Set(result.formats.map(keys)).size).toBe(1);
   });
 
+  it("gives every tensor and site arrays of its own, which a later judgement leaves as they were", () => {
+    // the risks, findings and evaluations are gathered in reused module arrays and copied out; an array handed out
+    // twice, or one a later call writes into, would show here
+    const first = judgePrediction(spec(), PREDICTION, { everyFormat: true });
+    const before = JSON.stringify(first);
+    const arrays: unknown[][] = first.tensors.flatMap((t) => [t.risks, ...t.risks.map((r) => r.findings)]);
+    arrays.push(...first.hazards.flatMap((h) => [h.evaluations, h.findings]));
+    expect(new Set(arrays).size).toBe(arrays.length);
+    expect(first.tensors.some((t) => t.risks.length === 2 && t.risks.some((r) => r.findings.length > 0))).toBe(true);
+    judgePrediction(spec(), PREDICTION, { lossScale: 2 ** 12 });
+    expect(JSON.stringify(first)).toBe(before);
+  });
+
   it("rejects an unknown format and a non-positive loss scale with a RangeError echoing the value", () => {
     expect(() => judgePrediction(spec(), PREDICTION, { formats: ["fp12" as never] })).toThrow(/"fp12"/);
     expect(() => judgePrediction(spec(), PREDICTION, { lossScale: -2 })).toThrow(/-2/);
