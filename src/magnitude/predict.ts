@@ -161,6 +161,15 @@ class Phase {
     return this.#sumDetail;
   }
 
+  #combineRule: string | undefined;
+
+  /** The ledger rule of combining micro-batch and worker gradients (the same for every weight of a spec: made once). */
+  private combineRule(): string {
+    const training = this.spec.training;
+    this.#combineRule ??= `${training.accumulationSteps} accumulation step(s) × ${training.workers} worker(s), gradients ${training.workerGradients}d`;
+    return this.#combineRule;
+  }
+
   /** The start pass creates the tensor; the end pass (same operations, same order) sets its end profile. */
   emit(record: TensorRecord): void {
     if (this.phase === "start") {
@@ -376,7 +385,7 @@ class Phase {
         rule: () => `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
         source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
       });
-      if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: `${A} accumulation step(s) × ${W} worker(s), gradients ${training.workerGradients}d`, source: "independent sums add in second moment (common practice)" });
+      if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment (common practice)" });
     }
     this.emit({
       id,
