@@ -29,52 +29,58 @@ export interface LossScaleCurves {
 export function lossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): LossScaleCurves[] {
   return lossScaleCurveParts(tensors, limits).map((parts) => {
     const { start, end, same } = parts;
-    const overflow = new Map<number, number>();
-    const flush = new Map<number, number>();
-    const flushBounds = new Map<number, readonly [number, number]>();
-    const overflowBounds = new Map<number, readonly [number, number]>();
     const worse = (f: (profile: MagnitudeProfile) => number): number => (same ? f(start) : Math.max(f(start), f(end)));
+    // every law scales with the profile: the profile scaled by 2^k against t is the profile against t·2^−k
+    const overflow = memoisedCurve(
+      (k) => {
+        const level = limits.overflowLevel * 2 ** -k;
+        return worse((p) => probabilityAnyAbove(p, level));
+      },
+      (k) => parts.overflowRiskBounds(k),
+    );
+    const flush = memoisedCurve(
+      (k) => {
+        const bound = limits.flushBound * 2 ** -k;
+        return worse((p) => energyBelow(p, bound));
+      },
+      (k) => parts.flushedEnergyBounds(k),
+    );
     return {
       id: parts.id,
       edgeGuessesLog2: parts.edgeGuessesLog2,
-      overflowRisk(k: number): number {
-        let value = overflow.get(k);
-        if (value === undefined) {
-          const level = limits.overflowLevel * 2 ** -k;
-          value = worse((p) => probabilityAnyAbove(p, level));
-          overflow.set(k, value);
-        }
-        return value;
-      },
-      overflowRiskBounds(k: number): readonly [number, number] {
-        const value = overflow.get(k);
-        if (value !== undefined) return [value, value];
-        let bounds = overflowBounds.get(k);
-        if (bounds === undefined) {
-          bounds = parts.overflowRiskBounds(k);
-          overflowBounds.set(k, bounds);
-        }
-        return bounds;
-      },
-      flushedEnergy(k: number): number {
-        let value = flush.get(k);
-        if (value === undefined) {
-          const bound = limits.flushBound * 2 ** -k;
-          value = worse((p) => energyBelow(p, bound));
-          flush.set(k, value);
-        }
-        return value;
-      },
-      flushedEnergyBounds(k: number): readonly [number, number] {
-        const value = flush.get(k);
-        if (value !== undefined) return [value, value];
-        let bounds = flushBounds.get(k);
-        if (bounds === undefined) {
-          bounds = parts.flushedEnergyBounds(k);
-          flushBounds.set(k, bounds);
-        }
-        return bounds;
-      },
+      overflowRisk: overflow.value,
+      overflowRiskBounds: overflow.bounds,
+      flushedEnergy: flush.value,
+      flushedEnergyBounds: flush.bounds,
     };
   });
+}
+
+// One curve memoised per exponent, with its cheap bounds memoised too (the exact value twice once it is known).
+function memoisedCurve(
+  exact: (k: number) => number,
+  cheap: (k: number) => readonly [number, number],
+): { value(k: number): number; bounds(k: number): readonly [number, number] } {
+  const values = new Map<number, number>();
+  const bounds = new Map<number, readonly [number, number]>();
+  return {
+    value: (k) => {
+      let value = values.get(k);
+      if (value === undefined) {
+        value = exact(k);
+        values.set(k, value);
+      }
+      return value;
+    },
+    bounds: (k) => {
+      const value = values.get(k);
+      if (value !== undefined) return [value, value];
+      let b = bounds.get(k);
+      if (b === undefined) {
+        b = cheap(k);
+        bounds.set(k, b);
+      }
+      return b;
+    },
+  };
 }
