@@ -10,6 +10,8 @@ import { gaussianSoftmaxMoments, gaussianSoftmaxPairMoment } from "../../src/num
 
 const Z_RANGE = 9;
 
+// Trapezoid weights of N(0, 1), normalised to sum to 1: written out here on purpose, not imported, so that the direct
+// method stays an independent oracle that a change to the quadrature's own helpers cannot move with it.
 function weights(n: number, h: number): Float64Array {
   const w = new Float64Array(n);
   let total = 0;
