@@ -157,31 +157,29 @@ function room(): void {
   tableCount = 0;
 }
 
-function weightEntry(weight: MagnitudeProfile): WeightEntry {
-  const list = WEIGHTS.get(weight.rms);
-  if (list !== undefined) for (const entry of list) if (isLawOf(entry.law, weight, weight.zeroFraction)) return entry;
+// the entry of `profile`'s law (its zeros set to `zeroFraction`) in `tables`, made by `make` on first meeting
+function entryOf<E extends { law: MagnitudeProfile }>(
+  tables: Map<number, E[]>,
+  profile: MagnitudeProfile,
+  zeroFraction: number,
+  make: (law: MagnitudeProfile) => E,
+): E {
+  const list = tables.get(profile.rms);
+  if (list !== undefined) for (const entry of list) if (isLawOf(entry.law, profile, zeroFraction)) return entry;
   room();
-  const law = lawOf(weight, weight.zeroFraction);
-  const entry: WeightEntry = { law, binades: law.rms > 0 ? weightBinades(law) : null };
-  const home = WEIGHTS.get(weight.rms);
-  if (home === undefined) WEIGHTS.set(weight.rms, [entry]);
+  const entry = make(lawOf(profile, zeroFraction));
+  const home = tables.get(profile.rms);
+  if (home === undefined) tables.set(profile.rms, [entry]);
   else home.push(entry);
   tableCount++;
   return entry;
 }
 
-function updateEntry(update: MagnitudeProfile): UpdateEntry {
-  const list = UPDATES.get(update.rms);
-  if (list !== undefined) for (const entry of list) if (isLawOf(entry.law, update, 0)) return entry;
-  room();
-  const law = lawOf(update);
-  const entry: UpdateEntry = { law, shares: new UpdateShares(shareBelow(law)), sums: new Map() };
-  const home = UPDATES.get(update.rms);
-  if (home === undefined) UPDATES.set(update.rms, [entry]);
-  else home.push(entry);
-  tableCount++;
-  return entry;
-}
+const weightEntry = (weight: MagnitudeProfile): WeightEntry =>
+  entryOf(WEIGHTS, weight, weight.zeroFraction, (law) => ({ law, binades: law.rms > 0 ? weightBinades(law) : null }));
+
+const updateEntry = (update: MagnitudeProfile): UpdateEntry =>
+  entryOf(UPDATES, update, 0, (law) => ({ law, shares: new UpdateShares(shareBelow(law)), sums: new Map() }));
 
 /**
  * The swamping sums of one assessment against a fixed list of formats. Weights of equal laws (the layers of one
