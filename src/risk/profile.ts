@@ -119,7 +119,8 @@ const DRAW_FILLED = new Uint8Array(DRAW_SLOTS);
 const DRAW_PROBE = new Float64Array(DRAW_KEY);
 const DRAW_PROBE_WORDS = new Int32Array(DRAW_PROBE.buffer);
 
-// the element shapes lawOverDraws tells apart, as numbers; -1 for one it does not know (not memoised)
+// the element shapes lawOverDraws tells apart, as numbers, for the draw and level tables; -1 for one it does not
+// know (the draw table does not memoise it)
 function shapeCode(shape: MagnitudeProfile["shape"]): number {
   switch (shape) {
     case "gaussian":
@@ -188,24 +189,6 @@ const LEVELS_LIMIT = LEVEL_SLOTS >> 1;
 let levelCount = 0;
 const KEY = new Float64Array(6);
 const KEY_WORDS = new Int32Array(KEY.buffer);
-// the element laws of the levels, as numbers (a bound is applied after the table: bounded is the Gaussian's)
-function levelShapeCode(shape: MagnitudeProfile["shape"]): number {
-  switch (shape) {
-    case "gaussian":
-    case "bounded":
-      return 0;
-    case "half-gaussian":
-      return 1;
-    case "uniform":
-      return 2;
-    case "constant":
-      return 3;
-    case "log-normal":
-      return 4;
-    default:
-      return -1;
-  }
-}
 // the slot holding KEY, or the empty slot where it goes
 function levelSlot(): number {
   let hash = 0x811c9dc5;
@@ -249,9 +232,9 @@ export function profileStatistics(
   // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
   // breaks the scale family, so solve without it and cap the levels at the bound afterwards
   const bound = profile.bound;
-  const lawShape = levelShapeCode(profile.shape);
-  KEY[0] = lawShape;
-  KEY[1] = lawShape === 4 ? (profile.elementLog2Spread ?? 0) : 0;
+  // the codes of the draw table; bounded is the Gaussian's law here (the bound is applied after the table)
+  KEY[0] = shapeCode(profile.shape === "bounded" ? "gaussian" : profile.shape);
+  KEY[1] = profile.shape === "log-normal" ? (profile.elementLog2Spread ?? 0) : 0;
   KEY[2] = n;
   KEY[3] = profile.log2Spread;
   KEY[4] = levels.maxQuantile;
