@@ -145,10 +145,11 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
     const worse = (f: (p: MagnitudeProfile) => number, bounds: (k: number) => readonly [number, number], k: number): number => {
       if (same) return f(start);
       const uppers = bounds(k);
-      const [first, second, secondUpper] = uppers[0] >= uppers[1] ? [start, end, uppers[1]] : [end, start, uppers[0]];
-      const a = f(first);
-      if (secondUpper <= a) return a;
-      return Math.max(f(start), f(end));
+      const startFirst = uppers[0] >= uppers[1];
+      const a = f(startFirst ? start : end);
+      if ((startFirst ? uppers[1] : uppers[0]) <= a) return a;
+      // the first value is kept, not integrated again (max is symmetric, so the order of the two does not matter)
+      return Math.max(a, f(startFirst ? end : start));
     };
     return {
       id: c.id,
