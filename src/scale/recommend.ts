@@ -162,8 +162,8 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
         const bound = limits.flushBound * 2 ** -k;
         return worse((p) => energyBelow(p, bound), flushUpper, k);
       },
-      overflowRiskBounds: (k) => c.overflowRiskBounds(k),
-      flushedEnergyBounds: (k) => c.flushedEnergyBounds(k),
+      overflowRiskBounds: c.overflowRiskBounds,
+      flushedEnergyBounds: c.flushedEnergyBounds,
       overflowRiskUpper(k) {
         const [a, b] = overflowUpper(k);
         return Math.max(a, b);
