@@ -153,7 +153,7 @@ function init(value: unknown): unknown {
 // ---------------------------------------------------------------------------------------------
 // layers
 
-const BARE = new Set<string>(BARE_LAYER_TYPES);
+const BARE = oneOf(BARE_LAYER_TYPES);
 const ACTIVATION = oneOf(ACTIVATION_TYPES);
 const PADDING = oneOf(PADDINGS);
 const SCALING = oneOf(ATTENTION_SCALINGS);
@@ -270,11 +270,10 @@ function pool(): (typeof LAYERS)[string] {
 }
 
 // the layer types as literals (see oneOf)
-const BARE_NAMES = new Map<string, string>([...BARE].map((v) => [v, v]));
 const LAYER_NAMES = new Map<string, string>(Object.keys(LAYERS).map((v) => [v, v]));
 
 function layer(value: unknown): unknown {
-  if (typeof value === "string") return BARE_NAMES.get(value) ?? refuse();
+  if (typeof value === "string") return BARE(value);
   const type = (value as Data | null)?.["type"];
   const kind = typeof type === "string" && Object.hasOwn(LAYERS, type) ? LAYERS[type]! : refuse();
   const raw = mapping(value, kind.keys);
