@@ -7,7 +7,7 @@
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
-import { textOf } from "../ops/common.js";
+import { maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { Factor, Gradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
@@ -355,13 +355,7 @@ class Phase {
    * gradients add up the same way, W·q, and averaging divides by W (q/W²).
    */
   weightGradient(layer: GraphLayer, prefix: string, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
-    let weight: GraphWeight | undefined;
-    for (const w of layer.weights) {
-      if (w.name === wg.weight) {
-        weight = w;
-        break;
-      }
-    }
+    const weight = maybeWeight(layer, wg.weight);
     if (weight === undefined) return;
     const training = this.spec.training;
     const A = training.accumulationSteps;
