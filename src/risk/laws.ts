@@ -69,10 +69,19 @@ const gaussian: ElementLaw = {
 const halfGaussian: ElementLaw = { ...gaussian, positiveShare: 1 };
 
 // x ~ U[−A, A] with A = r·√3 (variance A²/3): P(|x| ≤ t) = t/A, E[x²; |x| ≤ t]/E[x²] = (t/A)³, kurtosis 9/5.
+function uniformBelow(r: number, t: number): number {
+  return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3));
+}
+function uniformAbove(r: number, t: number): number {
+  return !(t > 0) ? 1 : !(r > 0) ? 0 : Math.max(0, 1 - t / (r * SQRT3));
+}
+function uniformEnergyBelow(r: number, t: number): number {
+  return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3)) ** 3;
+}
 const uniform: ElementLaw = {
-  below: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3))),
-  above: (r, t) => (!(t > 0) ? 1 : !(r > 0) ? 0 : Math.max(0, 1 - t / (r * SQRT3))),
-  energyBelow: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3)) ** 3),
+  below: uniformBelow,
+  above: uniformAbove,
+  energyBelow: uniformEnergyBelow,
   kurtosis: 9 / 5,
   positiveShare: 0.5,
 };
@@ -101,13 +110,20 @@ function boundedLaw(bound: number): ElementLaw {
 // log2|x| ~ N(m, s²) with m = log2 r − s²·ln 2, so that E[x²] = r² (E[2^{2sZ}] = e^{2(s ln 2)²}).
 // P(|x| ≤ t) = Φ((log2 t − m)/s) (SCIENCE.md §4, in log2 units); the partial second moment of a log-normal:
 // E[x²; |x| ≤ t]/E[x²] = Φ((log2 t − m)/s − 2s·ln 2); kurtosis e^{4(s ln 2)²}.
+function logNormalBelow(s: number, r: number, t: number): number {
+  return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
+}
+function logNormalAbove(s: number, r: number, t: number): number {
+  return !(t > 0) ? 1 : !(r > 0) ? 0 : normalSf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
+}
+function logNormalEnergyBelow(s: number, r: number, t: number): number {
+  return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s - 2 * s * LN2);
+}
 function logNormalLaw(s: number): ElementLaw {
-  const mean = (r: number): number => Math.log2(r) - s * s * LN2;
   return {
-    below: (r, t) => (!(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - mean(r)) / s)),
-    above: (r, t) => (!(t > 0) ? 1 : !(r > 0) ? 0 : normalSf((Math.log2(t) - mean(r)) / s)),
-    energyBelow: (r, t) =>
-      !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - mean(r)) / s - 2 * s * LN2),
+    below: (r, t) => logNormalBelow(s, r, t),
+    above: (r, t) => logNormalAbove(s, r, t),
+    energyBelow: (r, t) => logNormalEnergyBelow(s, r, t),
     kurtosis: Math.exp(4 * (s * LN2) ** 2),
     positiveShare: 0.5,
   };
@@ -247,7 +263,8 @@ const VALUES = new Float64Array(DRAW_NODES.z.length);
 
 // The integrand of a draw sum. The profile functions set these and the sum calls `integrand`, one function for
 // every element law: no closure per call, and one call site the compiler can specialise. The arithmetic is the
-// element laws' own, operation for operation, so the sums equal those of overDraws with the laws' closures.
+// element laws' own functions (the constant law's one comparison written again), so the sums equal those of
+// overDraws with the laws' closures.
 const ANY_ABOVE = 0;
 const BELOW = 1;
 const ENERGY_BELOW = 2;
@@ -268,11 +285,9 @@ function lawAbove(r: number, t: number): number {
     case GAUSSIAN:
       return gaussianAbove(r, t);
     case UNIFORM:
-      return !(t > 0) ? 1 : !(r > 0) ? 0 : Math.max(0, 1 - t / (r * SQRT3));
-    case LOG_NORMAL: {
-      const s = integrandSpread;
-      return !(t > 0) ? 1 : !(r > 0) ? 0 : normalSf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
-    }
+      return uniformAbove(r, t);
+    case LOG_NORMAL:
+      return logNormalAbove(integrandSpread, r, t);
     default:
       return r >= t ? 1 : 0;
   }
@@ -282,11 +297,9 @@ function lawBelow(r: number, t: number): number {
     case GAUSSIAN:
       return gaussianBelow(r, t);
     case UNIFORM:
-      return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3));
-    case LOG_NORMAL: {
-      const s = integrandSpread;
-      return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s);
-    }
+      return uniformBelow(r, t);
+    case LOG_NORMAL:
+      return logNormalBelow(integrandSpread, r, t);
     default:
       return r <= t ? 1 : 0;
   }
@@ -296,11 +309,9 @@ function lawEnergyBelow(r: number, t: number): number {
     case GAUSSIAN:
       return gaussianEnergyBelow(r, t);
     case UNIFORM:
-      return !(t > 0) ? 0 : !(r > 0) ? 1 : Math.min(1, t / (r * SQRT3)) ** 3;
-    case LOG_NORMAL: {
-      const s = integrandSpread;
-      return !(t > 0) ? 0 : !(r > 0) ? 1 : normalCdf((Math.log2(t) - (Math.log2(r) - s * s * LN2)) / s - 2 * s * LN2);
-    }
+      return uniformEnergyBelow(r, t);
+    case LOG_NORMAL:
+      return logNormalEnergyBelow(integrandSpread, r, t);
     default:
       return r <= t ? 1 : 0;
   }
