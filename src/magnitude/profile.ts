@@ -69,11 +69,6 @@ export function logNormalMedianLog2(rms: number, spread: number): number {
   return Math.log2(rms) - spread * spread * Math.LN2;
 }
 
-/** Expected largest element magnitude of n nonzero elements. */
-export function expectedMaxElement(m: Moments, rms: number, n: number): number {
-  return maxElementOf(m.shape, m.tail, m.elementLog2Spread, m.bound, rms, n);
-}
-
 /**
  * expectedMaxAbsGaussian by whole element count, in a small direct-mapped table (slot n mod 256): tensors of one
  * network share a few counts and each profile needs one, while counts that vary from layer to layer (fractional, or
@@ -93,6 +88,7 @@ function gaussianMaxOf(n: number): number {
   return max;
 }
 
+/** Expected largest element magnitude of n nonzero elements (the fields of the moments it reads, passed one by one). */
 function maxElementOf(shape: OpElementShape, tail: TailKind | undefined, elementLog2Spread: number | undefined, bound: number | undefined, rms: number, n: number): number {
   if (!(rms > 0) || n < 1) return 0;
   let max: number;
