@@ -140,6 +140,14 @@ function shapeCode(shape: MagnitudeProfile["shape"]): number {
   }
 }
 
+// the slot of a key's 32-bit words in a table of `slots` (a power of two): FNV-1a over the words, then mixed
+function hashSlot(words: Int32Array, slots: number): number {
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < words.length; i++) hash = Math.imul(hash ^ (words[i] as number), 0x01000193);
+  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
+  return (hash ^ (hash >>> 12)) & (slots - 1);
+}
+
 // lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table
 function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): number {
   const shape = shapeCode(profile.shape);
@@ -156,10 +164,7 @@ function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): nu
   DRAW_PROBE[6] = bound === undefined ? 0 : bound;
   DRAW_PROBE[7] = elementSpread === undefined ? 0 : elementSpread;
   DRAW_PROBE[8] = t;
-  let hash = 0x811c9dc5;
-  for (let i = 0; i < 2 * DRAW_KEY; i++) hash = Math.imul(hash ^ (DRAW_PROBE_WORDS[i] as number), 0x01000193);
-  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
-  const slot = (hash ^ (hash >>> 12)) & (DRAW_SLOTS - 1);
+  const slot = hashSlot(DRAW_PROBE_WORDS, DRAW_SLOTS);
   const at = slot * 2 * DRAW_KEY;
   if (DRAW_FILLED[slot] === 1) {
     let same = true;
@@ -191,10 +196,7 @@ const KEY = new Float64Array(6);
 const KEY_WORDS = new Int32Array(KEY.buffer);
 // the slot holding KEY, or the empty slot where it goes
 function levelSlot(): number {
-  let hash = 0x811c9dc5;
-  for (let i = 0; i < 12; i++) hash = Math.imul(hash ^ (KEY_WORDS[i] as number), 0x01000193);
-  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
-  let slot = (hash ^ (hash >>> 12)) & (LEVEL_SLOTS - 1);
+  let slot = hashSlot(KEY_WORDS, LEVEL_SLOTS);
   for (;;) {
     const at = slot * 6;
     const first = LEVEL_KEYS[at] as number;
