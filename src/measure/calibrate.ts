@@ -128,8 +128,9 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
       const tried: string[] = [];
       let rule: MatchRule = "default";
       let tensor: TensorMeasure | undefined;
-      const exactName = names[`${layer.name}/${w.name}`];
-      const mapped = names[layer.name];
+      // own keys only: a layer named "toString" or "constructor" must not find Object.prototype's members
+      const exactName = Object.hasOwn(names, `${layer.name}/${w.name}`) ? names[`${layer.name}/${w.name}`] : undefined;
+      const mapped = Object.hasOwn(names, layer.name) ? names[layer.name] : undefined;
       if (exactName !== undefined) {
         rule = "names";
         tried.push(exactName);

@@ -226,3 +226,16 @@ describe("recorded statistics", () => {
     expect(out.tensors.filter((t) => t.source === "measured").length).toBe(2);
   });
 });
+
+describe("calibrateGraph names map", () => {
+  it("looks up only the map's own keys: a layer named toString is matched by the default rule", async () => {
+    const parsed = parseSpec(SPEC.replace("name: fc2", "name: toString"), "probe.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const built = buildGraph(parsed.spec);
+    if (!built.ok) throw new Error("graph");
+    const path = files.write("weights-tostring.safetensors", safetensorsBytes([{ name: "toString.weight", dtype: "F32", shape: [16, 32], data: encode("F32", weights(16, 32, 0.07)) }]));
+    const calibration = calibrateGraph(built.graph, await readWeightFiles([path], parsed.spec.source), {});
+    expect(calibration.matches.map((m) => [m.id, m.tensor, m.rule])).toEqual([["toString/weight", "toString.weight", "default"]]);
+    for (const u of calibration.unmatched) for (const tried of u.tried) expect(typeof tried).toBe("string");
+  });
+});
