@@ -263,8 +263,10 @@ export function normalizeSpec(raw: RawSpec, source: string): NetworkSpec {
   } else {
     precision = normalizePlan(raw.precision, DEFAULT_PLAN_NAME);
   }
-  const blocks: Record<string, LayerSpec[]> = {};
-  for (const [name, items] of Object.entries(raw.blocks ?? {})) blocks[name] = normalizeLayers(items, ["blocks", name]);
+  // Object.fromEntries and a spread define own properties: a block or layer named __proto__ stays a key
+  const blocks: Record<string, LayerSpec[]> = Object.fromEntries(
+    Object.entries(raw.blocks ?? {}).map(([name, items]) => [name, normalizeLayers(items, ["blocks", name])]),
+  );
   const spec: NetworkSpec = {
     source,
     name: raw.name ?? nameFromSource(source),
@@ -280,7 +282,7 @@ export function normalizeSpec(raw: RawSpec, source: string): NetworkSpec {
     const weights = raw.measured.weights;
     spec.measured = {
       weights: weights === undefined ? [] : typeof weights === "string" ? [weights] : [...weights],
-      names: Object.assign({}, raw.measured.names),
+      names: { ...raw.measured.names },
     };
     if (raw.measured.statistics !== undefined) spec.measured.statistics = raw.measured.statistics;
   }

@@ -8,7 +8,7 @@ import { errorMap, flattenIssues, type RawIssue } from "./messages.js";
 import { normalizeSpec } from "./normalize.js";
 import { readPlainYaml } from "./plain-yaml.js";
 import { yamlLib } from "./yaml-lib.js";
-import { specSchema, type RawSpec } from "./schema.js";
+import { keepProtoEntries, specSchema, type RawSpec } from "./schema.js";
 import { validPlainSpec } from "./validate.js";
 import type { NetworkSpec, SpecPath } from "./types.js";
 
@@ -125,7 +125,12 @@ function validateSpec(document: Record<string, unknown>, source: string, parsed:
   const fast = cross.errors.length === 0 ? validPlainSpec(data) : undefined;
   if (fast !== undefined) return validSpec(fast, source, parsed, cross.warnings.map(toIssue));
   const checked = specSchema().safeParse(data, { error: errorMap, reportInput: true });
-  const errors = [...(checked.success ? [] : flattenIssues(checked.error.issues)), ...cross.errors].map(toIssue);
+  const kept = keepProtoEntries(data, checked.success ? checked.data : undefined, { error: errorMap, reportInput: true });
+  const errors = [
+    ...(checked.success ? [] : flattenIssues(checked.error.issues)),
+    ...kept.flatMap((entry) => flattenIssues(entry.issues, entry.path)),
+    ...cross.errors,
+  ].map(toIssue);
   if (errors.length > 0 || !checked.success) return { ok: false, issues: dedupe(errors).sort(byPosition) };
   return validSpec(checked.data, source, parsed, cross.warnings.map(toIssue));
 }

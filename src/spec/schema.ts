@@ -476,6 +476,7 @@ function buildSchemas(z: typeof Zod) {
   // ---------------------------------------------------------------------------------------------
   // the whole spec
 
+  const tensorName = z.string().min(1);
   const measured = z
     .strictObject({
       weights: z
@@ -483,7 +484,7 @@ function buildSchemas(z: typeof Zod) {
         .describe("safetensors or .npy files (globs allowed), relative to the spec's folder")
         .optional(),
       names: z
-        .record(z.string(), z.string().min(1))
+        .record(z.string(), tensorName)
         .describe("Layer name → tensor name in the weights files, where the default matching is wrong")
         .optional(),
       statistics: z.string().min(1).describe("A recorded-statistics file (CSV or JSON) from a short real run").optional(),
@@ -512,7 +513,7 @@ function buildSchemas(z: typeof Zod) {
     })
     .describe("A network spec for headroom: layers, initialisation, training setup and precision plan");
 
-  return { specSchema, plan, input, init, layer, layerObject };
+  return { specSchema, plan, input, init, layer, layerObject, layerList, tensorName };
 }
 
 type Schemas = ReturnType<typeof buildSchemas>;
@@ -534,6 +535,41 @@ function zodLib(): typeof Zod {
 /** The whole spec file, as written (kebab-case keys), as a zod schema; built on the first call. */
 export function specSchema(): Schemas["specSchema"] {
   return (schemas ??= buildSchemas(zodLib())).specSchema;
+}
+
+/**
+ * zod's records skip a key named "__proto__": its value is neither checked nor copied to the output (an assignment
+ * would set the output's prototype). In a spec it is a name like any other (it matches NAME_PATTERN), so the two
+ * records keyed by names, `blocks` and `measured.names`, have that entry checked here with the record's value
+ * schema and, when `output` is zod's successful parse, kept in it as an own property in the document's key order.
+ * Gives the issues of those values with the path of each entry.
+ */
+export function keepProtoEntries(
+  input: Record<string, unknown>,
+  output: RawSpec | undefined,
+  params: Zod.core.ParseContext<Zod.core.$ZodIssue>,
+): { path: string[]; issues: Zod.core.$ZodIssue[] }[] {
+  const { layerList, tensorName } = (schemas ??= buildSchemas(zodLib()));
+  const out: { path: string[]; issues: Zod.core.$ZodIssue[] }[] = [];
+  const keep = (record: unknown, parsed: Record<string, unknown> | undefined, schema: Zod.ZodType, path: string[]): Record<string, unknown> | undefined => {
+    if (typeof record !== "object" || record === null || Array.isArray(record) || !Object.hasOwn(record, "__proto__")) return parsed;
+    const checked = schema.safeParse((record as Record<string, unknown>)["__proto__"], params);
+    if (!checked.success) {
+      out.push({ path: [...path, "__proto__"], issues: checked.error.issues });
+      return parsed;
+    }
+    if (parsed === undefined) return parsed;
+    // Object.fromEntries defines own properties, so "__proto__" stays a key
+    return Object.fromEntries(Object.keys(record).map((key) => [key, key === "__proto__" ? checked.data : parsed[key]]));
+  };
+  const blocks = keep(input["blocks"], output?.blocks, layerList, ["blocks"]);
+  if (output !== undefined && blocks !== undefined) output.blocks = blocks as RawSpec["blocks"];
+  const measured = input["measured"];
+  if (typeof measured === "object" && measured !== null) {
+    const names = keep((measured as Record<string, unknown>)["names"], output?.measured?.names, tensorName, ["measured", "names"]);
+    if (output?.measured !== undefined && names !== undefined) output.measured.names = names as Record<string, string>;
+  }
+  return out;
 }
 
 let cachedJsonSchema: Record<string, unknown> | undefined;

@@ -113,3 +113,23 @@ describe("the recommended loss scale (Micikevicius et al. 2018 §3.2: choose S s
     expect(needsLossScale({ ...plan, gradients: "e5m2", scaling: "none" })).toBe(true);
   });
 });
+
+describe("names that JavaScript objects treat specially", () => {
+  it("checks the layers of a block named __proto__ under their names, like any block's", () => {
+    const text = [
+      "input: { features: 16 }",
+      "training: { batch: 8, loss: { kind: cross-entropy, classes: 4 } }",
+      "blocks:",
+      "  __proto__:",
+      "    - { type: dense, name: inner, width: 16 }",
+      "    - relu",
+      "layers:",
+      "  - { type: use, block: __proto__ }",
+      "  - { type: dense, name: head, width: 4 }",
+    ].join("\n");
+    const parsed = parseSpec(text, "proto.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const layers = [...new Set(check(parsed.spec).tensors.map((t) => t.layer))];
+    expect(layers).toEqual(["input", "use-0.inner", "use-0.relu-1", "head", "loss"]);
+  });
+});

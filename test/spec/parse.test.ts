@@ -351,3 +351,55 @@ describe("loadSpec(path)", () => {
     }
   });
 });
+
+describe("parseSpec(text, source): the name __proto__", () => {
+  // a spec's names follow NAME_PATTERN (src/spec/limits.ts), which __proto__ matches: it names a layer, a block and
+  // a measured-weights entry like any other name, though a JavaScript object would take the key for its prototype
+  const spec = (blocks: string, layers: string, measured = ""): string =>
+    [
+      "input: { features: 16 }",
+      "training: { batch: 8, loss: { kind: cross-entropy, classes: 4 } }",
+      blocks,
+      "layers:",
+      layers,
+      measured,
+    ].join("\n") + "\n";
+
+  it("keeps a block named __proto__ and inserts its layers", () => {
+    const result = parseSpec(spec("blocks:\n  __proto__:\n    - { type: dense, name: inner, width: 16 }\n    - relu", "  - { type: use, block: __proto__ }\n  - { type: dense, name: head, width: 4 }"), "p.yaml");
+    if (!result.ok) throw new Error(result.issues.map(formatSpecIssue).join("\n"));
+    expect(Object.keys(result.spec.blocks)).toEqual(["__proto__"]);
+    expect(Object.hasOwn(result.spec.blocks, "__proto__")).toBe(true);
+    expect(withoutPaths(result.spec.blocks["__proto__"]!)).toEqual([
+      { name: "inner", family: "dense", width: 16, bias: true, init: { kind: "lecun", distribution: "normal", gain: 1 } },
+      { name: "relu-1", family: "activation", activation: "relu", slope: 0 },
+    ]);
+    expect(JSON.parse(JSON.stringify(result.spec.blocks))).toHaveProperty("__proto__");
+  });
+
+  it("checks the layers of a block named __proto__ and positions what is wrong there", () => {
+    const result = parseSpec(spec("blocks:\n  __proto__:\n    - { type: dense, width: 0 }", "  - { type: use, block: __proto__ }"), "p.yaml");
+    expect(result.ok).toBe(false);
+    expect(!result.ok && result.issues.map(formatSpecIssue)).toEqual(["p.yaml:5:29: blocks.__proto__[0].width: must be at least 1, got 0"]);
+  });
+
+  it("keeps the measured-weights entry of a layer named __proto__", () => {
+    const result = parseSpec(
+      spec("", "  - { type: dense, name: __proto__, width: 16 }\n  - { type: dense, name: head, width: 4 }", "measured:\n  weights: w.safetensors\n  names: { __proto__: body.weight, head: top.weight }"),
+      "p.yaml",
+    );
+    if (!result.ok) throw new Error(result.issues.map(formatSpecIssue).join("\n"));
+    expect(result.warnings).toEqual([]);
+    expect(result.spec.layers.map((layer) => layer.name)).toEqual(["__proto__", "head"]);
+    expect(Object.entries(result.spec.measured!.names)).toEqual([
+      ["__proto__", "body.weight"],
+      ["head", "top.weight"],
+    ]);
+  });
+
+  it("refuses an empty tensor name given to a layer named __proto__, at its position", () => {
+    const result = parseSpec(spec("", "  - { type: dense, name: __proto__, width: 4 }", "measured:\n  names: { __proto__: '' }"), "p.yaml");
+    expect(result.ok).toBe(false);
+    expect(!result.ok && result.issues.map(formatSpecIssue)).toEqual(["p.yaml:7:23: measured.names.__proto__: must not be empty"]);
+  });
+});
