@@ -10,7 +10,7 @@ import { activationMoments } from "../ops/activation/moments.js";
 import { maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
-import type { Factor, Gradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
+import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { lossSeed } from "./loss.js";
 import { profileOf } from "./profile.js";
@@ -37,18 +37,6 @@ interface LedgerNode {
   parent: LedgerNode | null;
 }
 
-interface TensorRecord {
-  id: string;
-  layer: string;
-  layerIndex: number;
-  family: TensorPrediction["family"];
-  role: TensorRole;
-  slot: PlanSlot;
-  shape: number[];
-  profile: MagnitudeProfile;
-  ledger: LedgerNode | null;
-}
-
 interface PhaseResult {
   tensors: PredictedTensor[];
   hazards: Omit<HazardSite, "end">[];
@@ -65,15 +53,15 @@ const SLOT: Record<TensorRole, PlanSlot> = {
   loss: "activations",
 };
 
-const NORMS = new Set(["layer-norm", "rms-norm", "batch-norm"]);
-
 /** The end pass reports profiles only: its records carry no shape (the start pass's is reported). */
 const NO_SHAPE: number[] = [];
 
 function chain(node: LedgerNode | null, layer: string, factors: readonly Factor[], build: boolean): LedgerNode | null {
   if (!build) return null;
   let current = node;
-  for (const factor of factors) current = { layer, factor, parent: current };
+  // indexed loops throughout the walk: a for-of puts every call of its body in a try block (iterator close),
+  // which makes each optimising compile of the walk larger
+  for (let i = 0; i < factors.length; i++) current = { layer, factor: factors[i] as Factor, parent: current };
   return current;
 }
 
@@ -140,10 +128,11 @@ class Phase {
 
   /** Biases start at zero; at the end they are taken to have drifted as far as the layer's weights grew. */
   private prepareWeights(layer: GraphLayer): void {
-    if (this.phase !== "end") return;
     const growth = this.spec.training.horizon.weightGrowth;
-    const main = layer.weights[0];
-    for (const w of layer.weights) {
+    const weights = layer.weights;
+    const main = weights[0];
+    for (let i = 1; i < weights.length; i++) {
+      const w = weights[i] as GraphWeight;
       if (w.distribution === "zeros" && w !== main && main !== undefined) {
         const mainRms = main.distribution === "constant" ? Math.abs(main.value ?? 0) : Math.sqrt(main.variance);
         this.endVariance.set(w, (Math.max(growth - 1, 0) * mainRms) ** 2);
@@ -170,15 +159,32 @@ class Phase {
     return this.#combineRule;
   }
 
-  /** The start pass creates the tensor; the end pass (same operations, same order) sets its end profile. */
-  emit(record: TensorRecord): void {
+  /**
+   * The start pass creates the tensor; the end pass (same operations, same order) sets its end profile. The fields
+   * come one by one: no record object per tensor, and the end pass reads only the three it checks.
+   */
+  emit(
+    id: string,
+    layer: string,
+    layerIndex: number,
+    family: TensorPrediction["family"],
+    role: TensorRole,
+    slot: PlanSlot,
+    shape: number[],
+    profile: MagnitudeProfile,
+    ledger: LedgerNode | null,
+  ): void {
     if (this.phase === "start") {
-      this.tensors.push(new PredictedTensor(record));
+      this.tensors.push(new PredictedTensor(id, layer, layerIndex, family, role, slot, shape, profile, ledger));
       return;
     }
     const a = this.tensors[this.emitted++];
-    if (a === undefined || record.layer !== a.layer || record.role !== a.role) throw new RangeError(`internal: start and end passes disagree at tensor ${a?.id ?? record.layer}`);
-    a.end = record.profile;
+    if (a === undefined || layer !== a.layer || role !== a.role) this.disagree(a, layer);
+    else a.end = profile;
+  }
+
+  private disagree(a: PredictedTensor | undefined, layer: string): never {
+    throw new RangeError(`internal: start and end passes disagree at tensor ${a?.id ?? layer}`);
   }
 
   /** Throws unless the end pass met every tensor of the start pass. */
@@ -188,7 +194,7 @@ class Phase {
     }
   }
 
-  hazard(layer: GraphLayer, h: OpHazard, index: number): void {
+  hazard(layer: GraphLayer, h: OpHazard): void {
     const site: Omit<HazardSite, "end"> = {
       kind: h.kind,
       layer: layer.name,
@@ -202,93 +208,82 @@ class Phase {
   }
 
   weightRecords(layer: GraphLayer, prefix: string): void {
-    const growth = this.phase === "end" ? this.spec.training.horizon.weightGrowth : 1;
-    for (const w of layer.weights) {
-      const variance = this.ctx.variance(w);
-      let profile: MagnitudeProfile;
-      if (w.distribution === "constant") {
-        const value = Math.abs(w.value ?? 0) * growth;
-        profile = profileOf({ q: value * value, zeroFraction: value === 0 ? 1 : 0, shape: "constant", logVar: 0 }, w.elements);
-      } else {
-        const zero = variance === 0;
-        profile = profileOf(
-          {
-            q: variance,
-            zeroFraction: zero ? 1 : 0,
-            shape: w.distribution === "uniform" ? "uniform" : "gaussian",
-            logVar: 0,
-          },
-          w.elements,
-        );
-      }
-      let node: LedgerNode | null = null;
-      if (this.build && profile.rms > 0) {
-        const init = w.init;
-        const constant = w.distribution === "constant";
-        const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${variance.toPrecision(4)}`;
-        node = chain(null, layer.name, [{ ratio: profile.rms * profile.rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }], true);
-      }
-      this.emit({
-        id: this.build ? (w.name === "weight" ? `${prefix}weight` : `${prefix}weight:${w.name}`) : "",
-        layer: layer.name,
-        layerIndex: layer.index,
-        family: layer.family,
-        role: "weight",
-        slot: "weights",
-        shape: w.shape,
-        profile,
-        ledger: node,
-      });
+    const weights = layer.weights;
+    for (let i = 0; i < weights.length; i++) this.weightRecord(layer, prefix, weights[i] as GraphWeight);
+  }
+
+  private weightRecord(layer: GraphLayer, prefix: string, w: GraphWeight): void {
+    const variance = this.ctx.variance(w);
+    const constant = w.distribution === "constant";
+    let q = variance;
+    let zero = variance === 0;
+    if (constant) {
+      const growth = this.phase === "end" ? this.spec.training.horizon.weightGrowth : 1;
+      const value = Math.abs(w.value ?? 0) * growth;
+      q = value * value;
+      zero = value === 0;
     }
+    const profile = profileOf({ q, zeroFraction: zero ? 1 : 0, shape: constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", logVar: 0 }, w.elements);
+    let node: LedgerNode | null = null;
+    let id = "";
+    if (this.build) {
+      id = w.name === "weight" ? `${prefix}weight` : `${prefix}weight:${w.name}`;
+      if (profile.rms > 0) node = weightNode(layer.name, w, variance, profile.rms);
+    }
+    this.emit(id, layer.name, layer.index, layer.family, "weight", "weights", w.shape, profile, node);
   }
 
   forward(layers: readonly GraphLayer[], input: Signal, node: LedgerNode | null): { output: Signal; node: LedgerNode | null; resets: boolean } {
     let signal = input;
     let current = node;
     let resets = false;
-    for (const layer of layers) {
+    for (let li = 0; li < layers.length; li++) {
+      const layer = layers[li] as GraphLayer;
       // "<layer>/", the start of every id of the layer (made once; the end pass makes no ids)
       const prefix = this.build ? `${layer.name}/` : "";
-      this.prepareWeights(layer);
-      const rule = ruleFor(layer.family);
-      let branchResults = {};
+      if (this.phase === "end") this.prepareWeights(layer);
+      let branchResults: BranchResults = NO_BRANCH;
       if (layer.branch !== undefined) {
         const inner = this.forward(layer.branch, signal, current);
         branchResults = { branchOutput: inner.output, branchResets: inner.resets };
       }
-      const result = rule.forward(this.ctx, layer, signal, branchResults);
+      const result = ruleFor(layer.family).forward(this.ctx, layer, signal, branchResults);
       this.stash[layer.index] = result.stash;
       this.weightRecords(layer, prefix);
-      for (const inner of result.inner) {
-        this.emit({
-          id: this.build ? `${prefix}${inner.role}:${inner.suffix}` : "",
-          layer: layer.name,
-          layerIndex: layer.index,
-          family: layer.family,
-          role: inner.role,
-          slot: "activations",
-          shape: inner.shape,
-          profile: profileOf(inner.signal, inner.elements),
-          ledger: chain(current, layer.name, inner.factors, this.build),
-        });
-      }
-      for (let i = 0; i < result.hazards.length; i++) this.hazard(layer, result.hazards[i] as OpHazard, i);
+      const inner = result.inner;
+      for (let i = 0; i < inner.length; i++) this.innerTensor(layer, prefix, inner[i] as InnerTensor, current);
+      const hazards = result.hazards;
+      for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
       current = chain(current, layer.name, result.factors, this.build);
       signal = result.output;
-      if (NORMS.has(layer.family) || layer.family === "embedding" || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
-      this.emit({
-        id: this.build ? prefix + result.role : "",
-        layer: layer.name,
-        layerIndex: layer.index,
-        family: layer.family,
-        role: result.role,
-        slot: "activations",
-        shape: this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
-        profile: profileOf(signal, this.graph.batch * sampleElements(layer.output)),
-        ledger: current,
-      });
+      if (RESETS.has(layer.family) || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
+      this.emit(
+        this.build ? prefix + result.role : "",
+        layer.name,
+        layer.index,
+        layer.family,
+        result.role,
+        "activations",
+        this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
+        profileOf(signal, this.graph.batch * sampleElements(layer.output)),
+        current,
+      );
     }
     return { output: signal, node: current, resets };
+  }
+
+  private innerTensor(layer: GraphLayer, prefix: string, inner: InnerTensor, node: LedgerNode | null): void {
+    this.emit(
+      this.build ? `${prefix}${inner.role}:${inner.suffix}` : "",
+      layer.name,
+      layer.index,
+      layer.family,
+      inner.role,
+      "activations",
+      inner.shape,
+      profileOf(inner.signal, inner.elements),
+      chain(node, layer.name, inner.factors, this.build),
+    );
   }
 
   /** Walk layers backward from the gradient at their output; `seeded`: the last layer's output gradient is already reported. */
@@ -299,54 +294,54 @@ class Phase {
       const layer = layers[i] as GraphLayer;
       const prefix = this.build ? `${layer.name}/` : "";
       if (!(seeded && i === layers.length - 1)) {
-        this.emit({
-          id: this.build ? `${prefix}activation-gradient` : "",
-          layer: layer.name,
-          layerIndex: layer.index,
-          family: layer.family,
-          role: "activation-gradient",
-          slot: "gradients",
-          shape: this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
-          profile: profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
-          ledger: current,
-        });
+        this.emit(
+          this.build ? `${prefix}activation-gradient` : "",
+          layer.name,
+          layer.index,
+          layer.family,
+          "activation-gradient",
+          "gradients",
+          this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
+          profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
+          current,
+        );
       }
-      const rule = ruleFor(layer.family);
-      let branchResults = {};
-      if (layer.branch !== undefined) {
-        const seed = residualBranchSeed(layer, gradient);
-        // (present only with a value: a delete of an absent key is skipped, for speed)
-        if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
-        if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
-        const branchGradient = this.backward(layer.branch, seed.gradient, chain(current, layer.name, [seed.factor], this.build), false);
-        branchResults = { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
-      }
-      const result = rule.backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
-      // only the rectifier right before a max-pool may use the arg-max position
-      if (result.input !== undefined && layer.family !== "max-pool" && result.input.windowMaximum !== undefined) delete result.input.windowMaximum;
-      if (result.input !== undefined && layer.family !== "activation" && result.input.reluGated !== undefined) delete result.input.reluGated;
-      // rules that do not say otherwise keep the gradient's cross-sample correlation
-      if (result.input !== undefined && result.input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) {
-        result.input.shared = gradient.shared * (result.input.q / gradient.q);
-      }
-      for (const inner of result.inner) {
-        this.emit({
-          id: this.build ? `${prefix}activation-gradient:${inner.suffix}` : "",
-          layer: layer.name,
-          layerIndex: layer.index,
-          family: layer.family,
-          role: "activation-gradient",
-          slot: "gradients",
-          shape: inner.shape,
-          profile: profileOf(inner.gradient, inner.elements),
-          ledger: chain(current, layer.name, inner.factors, this.build),
-        });
-      }
-      for (const wg of result.weightGradients) this.weightGradient(layer, prefix, wg, current, gradient.q);
+      const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current);
+      const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
+      const input = result.input;
+      if (input !== undefined) tidyGradient(layer, input, gradient);
+      const inner = result.inner;
+      for (let k = 0; k < inner.length; k++) this.innerGradient(layer, prefix, inner[k] as InnerGradient, current);
+      const weightGradients = result.weightGradients;
+      for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
       current = chain(current, layer.name, result.factors, this.build);
-      gradient = result.input;
+      gradient = input;
     }
     return gradient;
+  }
+
+  /** A residual layer's branch, walked backward from its seed: the branch's input gradient for the rule. */
+  private branchBackward(layer: GraphLayer, gradient: Gradient, node: LedgerNode | null): BranchResults {
+    const seed = residualBranchSeed(layer, gradient);
+    // (present only with a value: a delete of an absent key is skipped, for speed)
+    if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
+    if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
+    const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.build), false);
+    return { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
+  }
+
+  private innerGradient(layer: GraphLayer, prefix: string, inner: InnerGradient, node: LedgerNode | null): void {
+    this.emit(
+      this.build ? `${prefix}activation-gradient:${inner.suffix}` : "",
+      layer.name,
+      layer.index,
+      layer.family,
+      "activation-gradient",
+      "gradients",
+      inner.shape,
+      profileOf(inner.gradient, inner.elements),
+      chain(node, layer.name, inner.factors, this.build),
+    );
   }
 
   /**
@@ -369,42 +364,69 @@ class Phase {
     const profile = profileOf({ q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W), shape: "gaussian", logVar: wg.logVar }, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
-    const id = this.build ? (wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`) : "";
-    const factors: Factor[] = [];
+    let id = "";
+    let ledger: LedgerNode | null = null;
     if (this.build) {
-      // the wording keeps only the rule, not the whole moment, alive until the ledger is read
-      const wgRule = wg.rule;
-      factors.push({
+      id = wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`;
+      ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
+    }
+    this.emit(id, layer.name, layer.index, layer.family, "weight-gradient", "gradients", weight.shape, profile, ledger);
+    if (A * W > 1) this.gradientSumHazard(layer, wg, weight, summedQ, A * W, id);
+  }
+
+  /** The ledger of a weight gradient (start pass only); `finalQ` when micro-batches or workers are combined. */
+  private weightGradientNode(layer: GraphLayer, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number, finalQ: number | undefined): LedgerNode | null {
+    // the wording keeps only the rule, not the whole moment, alive until the ledger is read
+    const wgRule = wg.rule;
+    const factors: Factor[] = [
+      {
         ratio: outputQ > 0 ? wg.q / outputQ : 0,
         rule: () => `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
         source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
-      });
-      if (A * W > 1) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment (common practice)" });
-    }
-    this.emit({
-      id,
-      layer: layer.name,
-      layerIndex: layer.index,
-      family: layer.family,
-      role: "weight-gradient",
-      slot: "gradients",
-      shape: weight.shape,
-      profile,
-      ledger: chain(node, layer.name, factors, this.build),
-    });
-    if (A * W > 1) {
-      const site: Omit<HazardSite, "end"> = {
-        kind: "gradient-sum",
-        layer: layer.name,
-        input: profileOf({ q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
-        terms: A * W,
-        guarded: false,
-        detail: !this.build ? "" : id + this.sumDetail(),
-        output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
-      };
-      this.hazards.push(site);
-    }
+      },
+    ];
+    if (finalQ !== undefined) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment (common practice)" });
+    return chain(node, layer.name, factors, true);
   }
+
+  /** The hazard of summing a weight gradient over micro-batches and workers. */
+  private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
+    const site: Omit<HazardSite, "end"> = {
+      kind: "gradient-sum",
+      layer: layer.name,
+      input: profileOf({ q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
+      terms,
+      guarded: false,
+      detail: !this.build ? "" : id + this.sumDetail(),
+      output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
+    };
+    this.hazards.push(site);
+  }
+}
+
+/** Extra inputs of a layer that is not a residual add (one object for all of them). */
+const NO_BRANCH: BranchResults = {};
+
+/** Families whose output no longer tracks the scale of their input (norms reset it; an embedding starts it). */
+const RESETS = new Set(["layer-norm", "rms-norm", "batch-norm", "embedding"]);
+
+/** The ledger of a weight at initialisation (start pass only). */
+function weightNode(layer: string, w: GraphWeight, variance: number, rms: number): LedgerNode {
+  const init = w.init;
+  const constant = w.distribution === "constant";
+  const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${variance.toPrecision(4)}`;
+  return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
+}
+
+/**
+ * What a gradient keeps on its way down: only the rectifier right before a max-pool may use the arg-max position,
+ * only the layer right below a ReLU its gate; rules that do not say otherwise keep the gradient's cross-sample
+ * correlation.
+ */
+function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): void {
+  if (layer.family !== "max-pool" && input.windowMaximum !== undefined) delete input.windowMaximum;
+  if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
+  if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
 }
 
 /**
@@ -428,17 +450,17 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     const q = input.scale * input.scale;
     signal = { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
     node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], build);
-    p.emit({
-      id: build ? "input/activation" : "",
-      layer: "input",
-      layerIndex: -1,
-      family: "input",
-      role: "activation",
-      slot: "activations",
-      shape: batchShape(graph.batch, graph.input),
-      profile: profileOf(signal, graph.batch * sampleElements(graph.input)),
-      ledger: node,
-    });
+    p.emit(
+      build ? "input/activation" : "",
+      "input",
+      -1,
+      "input",
+      "activation",
+      "activations",
+      batchShape(graph.batch, graph.input),
+      profileOf(signal, graph.batch * sampleElements(graph.input)),
+      node,
+    );
   }
   const forward = p.forward(graph.layers, signal, node);
 
@@ -456,17 +478,17 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     phase,
     training.horizon.finalLoss,
   );
-  p.emit({
-    id: build ? "loss/loss" : "",
-    layer: "loss",
-    layerIndex: graph.layerCount,
-    family: "loss",
-    role: "loss",
-    slot: "activations",
-    shape: [1],
-    profile: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
-    ledger: build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${seed.value.toPrecision(4)} at the median draw`, source: seed.source }], true) : null,
-  });
+  p.emit(
+    build ? "loss/loss" : "",
+    "loss",
+    graph.layerCount,
+    "loss",
+    "loss",
+    "activations",
+    [1],
+    profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
+    build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${seed.value.toPrecision(4)} at the median draw`, source: seed.source }], true) : null,
+  );
   if (training.loss.reduction === "sum") {
     p.hazards.push({
       kind: "loss-value",
@@ -479,29 +501,29 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     });
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);
-  p.emit({
-    id: build ? `${last.name}/activation-gradient` : "",
-    layer: last.name,
-    layerIndex: last.index,
-    family: last.family,
-    role: "activation-gradient",
-    slot: "gradients",
-    shape: batchShape(graph.batch, last.output),
-    profile: profileOf(seed.bulk.gradient, seed.bulk.elements),
-    ledger: build ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
-  });
+  p.emit(
+    build ? `${last.name}/activation-gradient` : "",
+    last.name,
+    last.index,
+    last.family,
+    "activation-gradient",
+    "gradients",
+    batchShape(graph.batch, last.output),
+    profileOf(seed.bulk.gradient, seed.bulk.elements),
+    build ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
+  );
   if (seed.target !== undefined) {
-    p.emit({
-      id: build ? `${last.name}/activation-gradient:target-class` : "",
-      layer: last.name,
-      layerIndex: last.index,
-      family: last.family,
-      role: "activation-gradient",
-      slot: "gradients",
-      shape: batchShape(graph.batch, last.output),
-      profile: profileOf(seed.target.gradient, seed.target.elements),
-      ledger: build ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
-    });
+    p.emit(
+      build ? `${last.name}/activation-gradient:target-class` : "",
+      last.name,
+      last.index,
+      last.family,
+      "activation-gradient",
+      "gradients",
+      batchShape(graph.batch, last.output),
+      profileOf(seed.target.gradient, seed.target.elements),
+      build ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
+    );
   }
   p.backward(graph.layers, seed.gradient, seedNode, true);
   p.finish();
@@ -548,19 +570,29 @@ class PredictedTensor {
   #cached: LedgerEntry[] | undefined;
 
   /** `end` starts as the start profile; the end pass replaces it. */
-  constructor(a: TensorRecord) {
-    this.id = a.id;
-    this.layer = a.layer;
-    this.layerIndex = a.layerIndex;
-    this.family = a.family;
-    this.role = a.role;
-    this.slot = a.slot;
-    this.shape = a.shape;
-    this.start = a.profile;
-    this.end = a.profile;
+  constructor(
+    id: string,
+    layer: string,
+    layerIndex: number,
+    family: TensorPrediction["family"],
+    role: TensorRole,
+    slot: PlanSlot,
+    shape: number[],
+    profile: MagnitudeProfile,
+    ledger: LedgerNode | null,
+  ) {
+    this.id = id;
+    this.layer = layer;
+    this.layerIndex = layerIndex;
+    this.family = family;
+    this.role = role;
+    this.slot = slot;
+    this.shape = shape;
+    this.start = profile;
+    this.end = profile;
     Object.defineProperty(this, "ledger", LEDGER_PROPERTY);
     this.source = "predicted";
-    this.#node = a.ledger;
+    this.#node = ledger;
     this.#cached = undefined;
   }
 
