@@ -12,6 +12,10 @@ export class IndexHeap {
   get size(): number {
     return this.items.length;
   }
+  /** empty the heap, to be filled again over the same keys */
+  clear(): void {
+    this.items.length = 0;
+  }
   private above(a: number, b: number): boolean {
     const ka = this.keys[a]!;
     const kb = this.keys[b]!;

@@ -145,6 +145,16 @@ class WindowSearch {
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
   private readonly pair = new Float64Array(2);
+  // scratch of one union-bound test (riskWithinByBounds): each tensor's bounds, its state, and their sums
+  private readonly lows: Float64Array;
+  private readonly highs: Float64Array;
+  private readonly state: Uint8Array;
+  private low = 0;
+  private high = 0;
+  private readonly heap: IndexHeap;
+  // scratch of one edge setter's search (worst): each tensor's upper bound, and whether it was integrated
+  private readonly worstHighs: Float64Array;
+  private readonly visited: Uint8Array;
 
   constructor(
     private readonly tensors: readonly ScaledTensorCurves[],
@@ -156,6 +166,12 @@ class WindowSearch {
     this.overflowRank = new Int32Array(this.n);
     this.overflowOrder.forEach((i, r) => (this.overflowRank[i] = r));
     this.allBounded = tensors.every((t) => t.overflowRiskBounds !== undefined);
+    this.lows = new Float64Array(this.n);
+    this.highs = new Float64Array(this.n);
+    this.state = new Uint8Array(this.n);
+    this.heap = new IndexHeap(this.highs, this.overflowRank);
+    this.worstHighs = new Float64Array(this.n);
+    this.visited = new Uint8Array(this.n);
   }
 
   window(active: Uint8Array): ScaleWindow {
@@ -251,7 +267,9 @@ class WindowSearch {
     let lo = -Infinity;
     let hi = Infinity;
     const rising = curve === "overflow";
-    for (const t of this.sorted[curve]) {
+    const sorted = this.sorted[curve];
+    for (let j = 0; j < sorted.length; j++) {
+      const t = sorted[j] as Table;
       const flags = t.flags[i] as number;
       if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) === 0) continue;
       let a = -Infinity;
@@ -300,14 +318,16 @@ class WindowSearch {
     return answer;
   }
 
+  // Bounds on the union bound at k, narrowed until they decide. The bounds live in the search's scratch arrays
+  // (sized once, rewritten by each call); their sums are kept in `low` and `high` as bounds change.
   private riskWithinByBounds(k: number, active: Uint8Array): boolean {
     const budget = this.o.riskBudget;
     const n = this.n;
     const table = this.table("overflow", k);
-    const lows = new Float64Array(n);
-    const highs = new Float64Array(n);
+    const lows = this.lows;
+    const highs = this.highs;
     // 0: bounds from what is known, 1: the upper bound at k taken, 2: exact, 3: set aside
-    const state = new Uint8Array(n);
+    const state = this.state;
     let low = 0;
     let high = 0;
     let unbounded = 0;
@@ -323,102 +343,136 @@ class WindowSearch {
       const b = known[1] as number;
       lows[i] = a;
       highs[i] = b;
-      if ((flags & HAS_VALUE) !== 0) state[i] = 2;
-      else if ((flags & HAS_UPPER) !== 0) state[i] = 1;
+      state[i] = (flags & HAS_VALUE) !== 0 ? 2 : (flags & HAS_UPPER) !== 0 ? 1 : 0;
       if (b === Infinity) unbounded++;
       low += a;
       high += b;
       // the lower bounds are nonnegative: once part of their sum is over the budget, the whole sum is
       if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
     }
-    // The sums are updated as bounds change; a decision they suggest is confirmed by summing afresh (the updates
-    // cancel, and their rounding adds up), widened for the rounding of a sum.
-    const decided = (): boolean | undefined => {
-      if (!(high * (1 + 1e-12) <= budget) && !(Math.min(1, low * (1 - 1e-12)) > budget)) return undefined;
-      low = 0;
-      high = 0;
-      for (let i = 0; i < n; i++) {
-        if (state[i] === 3) continue;
-        low += lows[i] as number;
-        high += highs[i] as number;
-      }
-      if (high * (1 + 1e-12) <= budget) return true;
-      if (Math.min(1, low * (1 - 1e-12)) > budget) return false;
-      return undefined;
-    };
-    const setBounds = (i: number, a: number, b: number): void => {
-      if (a > (lows[i] as number)) {
-        low += a - (lows[i] as number);
-        lows[i] = a;
-      }
-      if (b < (highs[i] as number)) {
-        // an infinite sum is summed afresh
-        if (highs[i] === Infinity) {
-          highs[i] = b;
-          high = 0;
-          for (let j = 0; j < n; j++) if (state[j] !== 3) high += highs[j] as number;
-        } else {
-          high += b - (highs[i] as number);
-          highs[i] = b;
-        }
-      }
-    };
-    const integrate = (i: number): void => {
-      const exact = this.value("overflow", k, i, table);
-      low += exact - (lows[i] as number);
-      lows[i] = exact;
-      if (highs[i] === Infinity) setBounds(i, exact, exact);
-      else {
-        high += exact - (highs[i] as number);
-        highs[i] = exact;
-      }
-      state[i] = 2;
-    };
-    // the tighter upper bound at k; false when the curve has none
-    const tighten = (i: number): boolean => {
-      state[i] = 1;
-      const u = this.upper("overflow", k, i, table);
-      if (u === undefined) return false;
-      setBounds(i, 0, Math.max(lows[i] as number, u));
-      return true;
-    };
-    let answer = decided();
+    this.low = low;
+    this.high = high;
+    let answer = this.decided();
     if (answer !== undefined) return answer;
     if (unbounded > 0) {
-      // the tensors still unbounded: their cheap bounds at the lowest exponent above k known over the budget
-      let ceiling = k;
-      for (const m of this.overBudget) if (m > k && (ceiling === k || m < ceiling)) ceiling = m;
-      const at = this.table("overflow", ceiling);
-      for (let i = 0; i < n; i++) {
-        if (state[i] === 3 || highs[i] !== Infinity) continue;
-        this.cheapBounds("overflow", i, at);
-        const a = ceiling === k ? Math.max(0, at.data[4 * i] as number) : 0;
-        const b = ceiling === k ? (at.data[4 * i + 1] as number) : (at.data[4 * i + 1] as number) * (1 + ACROSS);
-        if (a > (lows[i] as number)) {
-          low += a - (lows[i] as number);
-          lows[i] = a;
-        }
-        highs[i] = b;
-      }
-      high = 0;
-      for (let i = 0; i < n; i++) if (state[i] !== 3) high += highs[i] as number;
-      answer = decided();
+      this.boundUnbounded(k);
+      answer = this.decided();
       if (answer !== undefined) return answer;
     }
     // tighten the largest upper bound first (ties: priority order)
-    const heap = new IndexHeap(highs, this.overflowRank);
+    const heap = this.heap;
+    heap.clear();
     for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heap.push(i);
     while (heap.size > 0) {
       const i = heap.pop();
       // a tensor whose tighter bound could still break the budget alone is integrated at once: either answer needs it
-      if (state[i] === 0 && tighten(i) && (highs[i] as number) <= budget) heap.push(i);
-      else integrate(i);
-      answer = decided();
+      if (state[i] === 0 && this.tighten(k, i, table) && (highs[i] as number) <= budget) heap.push(i);
+      else this.integrate(k, i, table);
+      answer = this.decided();
       if (answer !== undefined) return answer;
     }
     let sum = 0;
     for (let i = 0; i < n; i++) if (active[i] === 1) sum += this.value("overflow", k, i, table);
     return Math.min(1, sum) <= budget;
+  }
+
+  // The sums are updated as bounds change; a decision they suggest is confirmed by summing afresh (the updates
+  // cancel, and their rounding adds up), widened for the rounding of a sum.
+  private decided(): boolean | undefined {
+    const budget = this.o.riskBudget;
+    if (!(this.high * (1 + 1e-12) <= budget) && !(Math.min(1, this.low * (1 - 1e-12)) > budget)) return undefined;
+    this.sumBounds();
+    if (this.high * (1 + 1e-12) <= budget) return true;
+    if (Math.min(1, this.low * (1 - 1e-12)) > budget) return false;
+    return undefined;
+  }
+
+  // `low` and `high` summed afresh over the tensors not set aside
+  private sumBounds(): void {
+    const n = this.n;
+    const state = this.state;
+    let low = 0;
+    let high = 0;
+    for (let i = 0; i < n; i++) {
+      if (state[i] === 3) continue;
+      low += this.lows[i] as number;
+      high += this.highs[i] as number;
+    }
+    this.low = low;
+    this.high = high;
+  }
+
+  // The tensors still unbounded at k: their cheap bounds at the lowest exponent above k known over the budget.
+  private boundUnbounded(k: number): void {
+    const n = this.n;
+    const state = this.state;
+    const lows = this.lows;
+    const highs = this.highs;
+    let ceiling = k;
+    const overBudget = this.overBudget;
+    for (let j = 0; j < overBudget.length; j++) {
+      const m = overBudget[j] as number;
+      if (m > k && (ceiling === k || m < ceiling)) ceiling = m;
+    }
+    const at = this.table("overflow", ceiling);
+    for (let i = 0; i < n; i++) {
+      if (state[i] === 3 || highs[i] !== Infinity) continue;
+      this.cheapBounds("overflow", i, at);
+      const a = ceiling === k ? Math.max(0, at.data[4 * i] as number) : 0;
+      const b = ceiling === k ? (at.data[4 * i + 1] as number) : (at.data[4 * i + 1] as number) * (1 + ACROSS);
+      if (a > (lows[i] as number)) {
+        this.low += a - (lows[i] as number);
+        lows[i] = a;
+      }
+      highs[i] = b;
+    }
+    let high = 0;
+    for (let i = 0; i < n; i++) if (state[i] !== 3) high += highs[i] as number;
+    this.high = high;
+  }
+
+  private setBounds(i: number, a: number, b: number): void {
+    const lows = this.lows;
+    const highs = this.highs;
+    if (a > (lows[i] as number)) {
+      this.low += a - (lows[i] as number);
+      lows[i] = a;
+    }
+    if (b < (highs[i] as number)) {
+      // an infinite sum is summed afresh
+      if (highs[i] === Infinity) {
+        highs[i] = b;
+        let high = 0;
+        for (let j = 0; j < this.n; j++) if (this.state[j] !== 3) high += highs[j] as number;
+        this.high = high;
+      } else {
+        this.high += b - (highs[i] as number);
+        highs[i] = b;
+      }
+    }
+  }
+
+  private integrate(k: number, i: number, table: Table): void {
+    const exact = this.value("overflow", k, i, table);
+    const lows = this.lows;
+    const highs = this.highs;
+    this.low += exact - (lows[i] as number);
+    lows[i] = exact;
+    if (highs[i] === Infinity) this.setBounds(i, exact, exact);
+    else {
+      this.high += exact - (highs[i] as number);
+      highs[i] = exact;
+    }
+    this.state[i] = 2;
+  }
+
+  // the tighter upper bound at k; false when the curve has none
+  private tighten(k: number, i: number, table: Table): boolean {
+    this.state[i] = 1;
+    const u = this.upper("overflow", k, i, table);
+    if (u === undefined) return false;
+    this.setBounds(i, 0, Math.max(this.lows[i] as number, u));
+    return true;
   }
 
   // The active tensor with the largest value at k (the first such in the tensors' order; the first tensor when no
@@ -428,7 +482,9 @@ class WindowSearch {
   private worst(curve: Curve, k: number, active: Uint8Array): { id: string | null; value: number } {
     const table = this.table(curve, k);
     const n = this.n;
-    const highs = new Float64Array(n);
+    const highs = this.worstHighs;
+    const visited = this.visited;
+    visited.fill(0);
     let floor = -Infinity;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) continue;
@@ -440,13 +496,14 @@ class WindowSearch {
       highs[i] = known[1] as number;
       if ((known[0] as number) > floor) floor = known[0] as number;
     }
-    const visited = new Uint8Array(n);
-    // the lowest index of a tensor visited whose value is the floor, or −1 when the floor is only a bound
+    // the lowest index of a tensor visited whose value is the floor, or −1 when the floor is only a bound; a tensor
+    // is beaten when its bound is below the floor, or only reaches a floor held by a tensor before it
     let holder = -1;
-    const beaten = (i: number): boolean =>
-      (highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor);
-    for (const i of curve === "overflow" ? this.overflowOrder : this.flushOrder) {
-      if (active[i] === 0 || beaten(i)) continue;
+    const order = curve === "overflow" ? this.overflowOrder : this.flushOrder;
+    for (let r = 0; r < n; r++) {
+      const i = order[r] as number;
+      if (active[i] === 0) continue;
+      if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
       if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0) {
         // bounded from another exponent only: the cheap bounds here first
         this.cheapBounds(curve, i, table);
@@ -455,7 +512,7 @@ class WindowSearch {
           floor = table.data[4 * i] as number;
           holder = -1;
         }
-        if (beaten(i)) continue;
+        if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
       }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
       if (u !== undefined && u < floor) continue;
@@ -488,7 +545,9 @@ class WindowSearch {
     const tolerance = this.o.flushTolerance;
     let ok: boolean | undefined;
     // tolerated below k: tolerated at k; not tolerated above k: not at k
-    for (const t of this.sorted.flush) {
+    const sorted = this.sorted.flush;
+    for (let j = 0; j < sorted.length; j++) {
+      const t = sorted[j] as Table;
       const f = t.flags[i] as number;
       if ((f & TOLERANCE_KNOWN) === 0) continue;
       if (t.k < k && (f & TOLERATED) !== 0) ok = true;
