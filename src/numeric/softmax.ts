@@ -52,7 +52,12 @@ const GAUSS_STEP = 0.75;
 const MOMENT_CUT = 1e-13;
 /** The same for the pair moment, whose ln t step already errs by about 3e-9. */
 const PAIR_CUT = 1e-12;
-const cache = new Map<string, SoftmaxMoments>();
+/** −∞ as a constant: a literal `-Infinity` is a negation that optimised code first meets on a rare branch (a deopt). */
+const NEG_INF = -Infinity;
+// memo of gaussianSoftmaxMoments by class count, then variance (numbers as keys: building a string key cost more than
+// the lookup); `cached` counts its entries
+const cache = new Map<number, Map<number, SoftmaxMoments>>();
+let cached = 0;
 
 /**
  * Exact moments of the softmax of `classes` independent N(0, variance) logits (method in the module comment).
@@ -76,9 +81,31 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
     // one-hot limit: the largest logit takes the whole mass, and the log-sum-exp is the largest logit
     return { mean: 1 / C, second: 1 / C, logSumExp: Math.sqrt(variance) * expectedMaxNormal(C) };
   }
-  const key = `${variance}|${C}`;
-  const hit = cache.get(key);
+  let byVariance = cache.get(C);
+  const hit = byVariance?.get(variance);
   if (hit !== undefined) return hit;
+  const result = softmaxMoments(variance, C);
+  if (cached > 4096) {
+    cache.clear();
+    cached = 0;
+    byVariance = undefined;
+  }
+  if (byVariance === undefined) {
+    byVariance = new Map();
+    cache.set(C, byVariance);
+  }
+  byVariance.set(variance, result);
+  cached++;
+  return result;
+}
+
+// The loops of the quadratures live in small functions of their own, each ending in a plain return: a loop
+// optimised while it runs (on-stack replacement, often in the first call here) has no type feedback yet for code
+// after it, so an object built there threw the optimised code away again, and a large function waits for more of
+// V8's profiler ticks before it is optimised at all than a small one.
+
+/** gaussianSoftmaxMoments past its special cases and its memo. */
+function softmaxMoments(variance: number, C: number): SoftmaxMoments {
   const s = Math.sqrt(variance);
   // u = ln t on steps of U_STEP, Z on a grid with s·h = U_STEP/k: every u + s·x_i falls on one lattice, so the
   // transcendental parts are evaluated once per lattice point v_j = base + j·spacing (y = e^v: 1 − e^(−y), y·e^(−y),
@@ -93,22 +120,18 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
     Math.log((MOMENT_CUT * logC) / h) - logC,
   ) - variance / 2;
   const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, C, cut);
-  const { a0, a1, a2 } = latticeTransforms(latticeLength, base, spacing);
-  const result = momentSums(steps, low, k, n, weight, a0, a1, a2, C);
-  if (cache.size > 4096) cache.clear();
-  cache.set(key, result);
-  return result;
-}
-
-// The loops of gaussianSoftmaxMoments live in their own small functions: each is optimised as soon as it is hot with
-// the type feedback of its whole body, where one large function was optimised early and then thrown back to the
-// interpreter by its later, not yet run, parts (a first call cost tens of milliseconds).
-
-/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y), y·e^(−y), y²·e^(−y). */
-function latticeTransforms(latticeLength: number, base: number, spacing: number): { a0: Float64Array; a1: Float64Array; a2: Float64Array } {
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);
   const a2 = new Float64Array(latticeLength);
+  latticeTransforms(a0, a1, a2, base, spacing);
+  const sums = new Float64Array(3);
+  momentSums(steps, low, k, n, weight, a0, a1, a2, C, sums);
+  return { mean: (sums[0] as number) * U_STEP, second: (sums[1] as number) * U_STEP, logSumExp: (sums[2] as number) * U_STEP };
+}
+
+/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0, y·e^(−y) into a1, y²·e^(−y) into a2. */
+function latticeTransforms(a0: Float64Array, a1: Float64Array, a2: Float64Array, base: number, spacing: number): void {
+  const latticeLength = a0.length;
   for (let j = 0; j < latticeLength; j++) {
     const y = Math.exp(base + j * spacing);
     const e = Math.exp(-y);
@@ -118,10 +141,19 @@ function latticeTransforms(latticeLength: number, base: number, spacing: number)
       a2[j] = y * y * e;
     }
   }
-  return { a0, a1, a2 };
 }
 
-/** The trapezoid sums over u = ln t of gaussianSoftmaxMoments. */
+/** Σ_i w[i]·a[offset + i] for i < n, in order. */
+function dot(w: Float64Array, a: Float64Array, offset: number, n: number): number {
+  let sum = 0;
+  for (let i = 0; i < n; i++) sum += (w[i] as number) * (a[offset + i] as number);
+  return sum;
+}
+
+/**
+ * The trapezoid sums over u = ln t of gaussianSoftmaxMoments, before the factor U_STEP: E[p], E[p²] and E[ln Σ e^z]
+ * into sums[0 … 2], which hold the running sums (no code that optimised code has not yet seen after the loop).
+ */
 function momentSums(
   steps: number,
   low: number,
@@ -132,33 +164,28 @@ function momentSums(
   a1: Float64Array,
   a2: Float64Array,
   C: number,
-): SoftmaxMoments {
-  let mean = 0;
-  let second = 0;
-  let logSumExp = 0;
+  sums: Float64Array,
+): void {
+  sums[0] = 0;
+  sums[1] = 0;
+  sums[2] = 0;
   for (let m = 0; m < steps; m++) {
     const t = Math.exp(low + m * U_STEP);
     const offset = m * k;
-    let oneMinusL0 = 0; // 1 − L_0(t), summed directly so that small t keeps its relative accuracy
-    let l1 = 0; // t·L_1(t)
-    let l2 = 0; // t²·L_2(t)
-    for (let i = 0; i < n; i++) {
-      const w = weight[i] as number;
-      oneMinusL0 += w * (a0[offset + i] as number);
-      l1 += w * (a1[offset + i] as number);
-      l2 += w * (a2[offset + i] as number);
-    }
-    const logL0 = oneMinusL0 < 1 ? Math.log1p(-oneMinusL0) : -Infinity;
+    // 1 − L_0(t), summed directly so that small t keeps its relative accuracy
+    const oneMinusL0 = dot(weight, a0, offset, n);
+    const logL0 = oneMinusL0 < 1 ? Math.log1p(-oneMinusL0) : NEG_INF;
     const others = Math.exp((C - 1) * logL0); // L_0(t)^(C−1): the transform of S
-    mean += l1 * others; // t·L_1·L_0^(C−1) dt/t·(t/t)
-    second += l2 * others; // t·L_2·L_0^(C−1)·t du
+    sums[0] += dot(weight, a1, offset, n) * others; // t·L_1(t)·L_0^(C−1) dt/t·(t/t)
+    sums[1] += dot(weight, a2, offset, n) * others; // t²·L_2(t)·L_0^(C−1)·t du
     // (e^(−t) − L_0^C)/t · t du = (1 − L_0^C) − (1 − e^(−t))
-    logSumExp += -Math.expm1(C * logL0) + Math.expm1(-t);
+    sums[2] += -Math.expm1(C * logL0) + Math.expm1(-t);
   }
-  return { mean: mean * U_STEP, second: second * U_STEP, logSumExp: logSumExp * U_STEP };
 }
 
-const pairCache = new Map<string, number>();
+// memo of gaussianSoftmaxPairMoment by class count, variance, then correlation; `pairCached` counts its entries
+const pairCache = new Map<number, Map<number, Map<number, number>>>();
+let pairCached = 0;
 /** Step in ln t and ln u for the pair moment: e^(−π²/0.5) ≈ 3e-9 relative, a quarter of the work of 0.25. */
 const PAIR_STEP = 0.5;
 
@@ -190,9 +217,32 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
     const m2 = gaussianSoftmaxMoments(variance, C).second;
     return 1 / (C * C) + (commonVariance * (1 / C - m2) ** 2 * C) / (C - 1);
   }
-  const key = `${variance}|${c}|${C}`;
-  const hit = pairCache.get(key);
+  let byVariance = pairCache.get(C);
+  let byCorrelation = byVariance?.get(variance);
+  const hit = byCorrelation?.get(c);
   if (hit !== undefined) return hit;
+  const result = pairMoment(variance, c, C, commonVariance);
+  if (pairCached > 4096) {
+    pairCache.clear();
+    pairCached = 0;
+    byVariance = undefined;
+    byCorrelation = undefined;
+  }
+  if (byVariance === undefined) {
+    byVariance = new Map();
+    pairCache.set(C, byVariance);
+  }
+  if (byCorrelation === undefined) {
+    byCorrelation = new Map();
+    byVariance.set(variance, byCorrelation);
+  }
+  byCorrelation.set(c, result);
+  pairCached++;
+  return result;
+}
+
+/** gaussianSoftmaxPairMoment past its special cases and its memo (commonVariance = c·variance). */
+function pairMoment(variance: number, c: number, C: number, commonVariance: number): number {
   const sa = Math.sqrt(commonVariance);
   const se = Math.sqrt((1 - c) * variance);
   // ln t and ln u on steps of PAIR_STEP, the common part a on a grid with sa·h_a = PAIR_STEP/k (one lattice)
@@ -207,46 +257,48 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   const he = se > 0 ? Math.min(GAUSS_STEP, 0.3 / se) : 1;
   const ne = se > 0 ? 2 * Math.ceil(Z_RANGE / he) + 1 : 1;
   const we = se > 0 ? normalisedGaussianWeights(ne, he) : Float64Array.of(1);
-  const { offMinus, m1 } = pairTransforms(latticeLength, base, spacing, se, he, ne, we);
-  const result = pairSum(steps, k, na, wa, offMinus, m1, C) * PAIR_STEP * PAIR_STEP;
-  if (pairCache.size > 4096) pairCache.clear();
-  pairCache.set(key, result);
-  return result;
-}
-
-/**
- * The one-class transforms of the ε part of gaussianSoftmaxPairMoment on the lattice. e^(se·ε_e) does not depend on
- * the lattice point, so it is tabled once (the same expression, so the same values); past y = 39, e^(−y) is below
- * half an ulp of 1 and expm1(−y) is exactly −1 (fdlibm returns −1 below −56·ln 2), so it is not called.
- */
-function pairTransforms(
-  latticeLength: number,
-  base: number,
-  spacing: number,
-  se: number,
-  he: number,
-  ne: number,
-  we: Float64Array,
-): { offMinus: Float64Array; m1: Float64Array } {
   const growth = new Float64Array(ne);
   for (let e = 0; e < ne; e++) growth[e] = Math.exp(se * (e - (ne - 1) / 2) * he);
   const offMinus = new Float64Array(latticeLength);
   const m1 = new Float64Array(latticeLength);
+  pairTransforms(offMinus, m1, base, spacing, growth, we);
+  return pairSum(steps, k, na, wa, offMinus, m1, C) * PAIR_STEP * PAIR_STEP;
+}
+
+/**
+ * The one-class transforms of the ε part of gaussianSoftmaxPairMoment on the lattice, into offMinus and m1.
+ * e^(se·ε_e) does not depend on the lattice point, so it is tabled once in `growth` (the same expression, so the same
+ * values); past y = 39, e^(−y) is below half an ulp of 1 and expm1(−y) is exactly −1 (fdlibm returns −1 below
+ * −56·ln 2), so it is not called.
+ */
+function pairTransforms(offMinus: Float64Array, m1: Float64Array, base: number, spacing: number, growth: Float64Array, we: Float64Array): void {
+  const latticeLength = offMinus.length;
   for (let j = 0; j < latticeLength; j++) {
     const tau = Math.exp(base + j * spacing);
-    let a0 = 0;
-    let a1 = 0;
-    for (let e = 0; e < ne; e++) {
-      const y = tau * (growth[e] as number);
-      const w = we[e] as number;
-      a0 -= w * (y > 39 ? -1 : Math.expm1(-y));
-      const decay = Math.exp(-y);
-      if (decay > 0) a1 += w * y * decay;
-    }
-    offMinus[j] = a0;
-    m1[j] = a1;
+    offMinus[j] = offTransform(tau, growth, we);
+    m1[j] = decayTransform(tau, growth, we);
   }
-  return { offMinus, m1 };
+}
+
+/** 1 − E[exp(−τ·e^(se·ε))] on the ε grid: Σ_e −w_e·expm1(−y_e), y_e = τ·growth[e]. */
+function offTransform(tau: number, growth: Float64Array, we: Float64Array): number {
+  let a0 = 0;
+  for (let e = 0; e < growth.length; e++) {
+    const y = tau * (growth[e] as number);
+    a0 -= (we[e] as number) * (y > 39 ? -1 : Math.expm1(-y));
+  }
+  return a0;
+}
+
+/** E[τ·e^(se·ε)·exp(−τ·e^(se·ε))] on the ε grid: Σ_e w_e·y_e·e^(−y_e), the terms whose exponential underflows left out. */
+function decayTransform(tau: number, growth: Float64Array, we: Float64Array): number {
+  let a1 = 0;
+  for (let e = 0; e < growth.length; e++) {
+    const y = tau * (growth[e] as number);
+    const decay = Math.exp(-y);
+    if (decay > 0) a1 += (we[e] as number) * y * decay;
+  }
+  return a1;
 }
 
 /**
@@ -258,31 +310,54 @@ function pairTransforms(
  */
 function pairSum(steps: number, k: number, na: number, wa: Float64Array, offMinus: Float64Array, m1: Float64Array, C: number): number {
   const single = new Float64Array(steps); // 1 − L_0 at each node of ln t
-  for (let i = 0; i < steps; i++) {
-    let x = 0;
-    for (let r = 0; r < na; r++) x += (wa[r] as number) * (offMinus[i * k + r] as number);
-    single[i] = x;
-  }
+  for (let i = 0; i < steps; i++) single[i] = dot(wa, offMinus, i * k, na);
   let sum = 0;
-  for (let i = 0; i < steps; i++) {
-    for (let j = i; j < steps; j++) {
-      if ((C - 1) * Math.log1p(-Math.max(single[i] as number, single[j] as number) * (1 - 1e-12)) < -800) break;
-      let oneMinusB = 0;
-      let m = 0;
-      for (let r = 0; r < na; r++) {
-        const w = wa[r] as number;
-        const x = offMinus[i * k + r] as number;
-        const y = offMinus[j * k + r] as number;
-        oneMinusB += w * (x + y - x * y);
-        m += w * (m1[i * k + r] as number) * (m1[j * k + r] as number);
-      }
-      if (m === 0) continue;
-      const logB = oneMinusB < 1 ? Math.log1p(-oneMinusB) : -Infinity;
-      const term = m * Math.exp((C - 1) * logB);
-      sum += i === j ? term : 2 * term;
-    }
+  // one running sum over the rows, in the order of the double loop
+  for (let i = 0; i < steps; i++) sum = pairRow(sum, i, steps, k, na, wa, offMinus, m1, C, single);
+  return sum;
+}
+
+/** `sum` plus row i (ln t node i, ln u nodes j ≥ i) of pairSum's double sum. */
+function pairRow(
+  sum: number,
+  i: number,
+  steps: number,
+  k: number,
+  na: number,
+  wa: Float64Array,
+  offMinus: Float64Array,
+  m1: Float64Array,
+  C: number,
+  single: Float64Array,
+): number {
+  for (let j = i; j < steps; j++) {
+    if ((C - 1) * Math.log1p(-Math.max(single[i] as number, single[j] as number) * (1 - 1e-12)) < -800) break;
+    const m = pairProduct(wa, m1, i * k, j * k, na);
+    if (m === 0) continue;
+    const oneMinusB = pairUnion(wa, offMinus, i * k, j * k, na);
+    const logB = oneMinusB < 1 ? Math.log1p(-oneMinusB) : NEG_INF;
+    const term = m * Math.exp((C - 1) * logB);
+    sum += i === j ? term : 2 * term;
   }
   return sum;
+}
+
+/** M(t, u) of pairSum: Σ_r w_r·m1[io + r]·m1[jo + r]. */
+function pairProduct(wa: Float64Array, m1: Float64Array, io: number, jo: number, na: number): number {
+  let m = 0;
+  for (let r = 0; r < na; r++) m += (wa[r] as number) * (m1[io + r] as number) * (m1[jo + r] as number);
+  return m;
+}
+
+/** 1 − B(t, u) of pairSum: Σ_r w_r·(x + y − x·y), x and y the one-class 1 − L_0 at the two nodes. */
+function pairUnion(wa: Float64Array, offMinus: Float64Array, io: number, jo: number, na: number): number {
+  let oneMinusB = 0;
+  for (let r = 0; r < na; r++) {
+    const x = offMinus[io + r] as number;
+    const y = offMinus[jo + r] as number;
+    oneMinusB += (wa[r] as number) * (x + y - x * y);
+  }
+  return oneMinusB;
 }
 
 /**
