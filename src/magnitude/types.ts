@@ -121,8 +121,10 @@ export type HazardKind =
   | "loss-value"
   /** gradient sums across data-parallel workers and accumulation steps */
   | "gradient-sum"
-  /** optimizer constants (Adam's epsilon) and squared gradients held in the optimizer-state format */
-  | "optimizer-constant";
+  /** optimizer constants (Adam's epsilon) held in the optimizer-state format */
+  | "optimizer-constant"
+  /** Adam's second moment (1 − β2)·g², stored in the optimizer-state format */
+  | "optimizer-second-moment";
 
 /** An operation site the risk module judges against the plan's formats. */
 export interface HazardSite {

@@ -203,13 +203,8 @@ const HAZARD_WORDS: Readonly<Record<HazardCheck["kind"], string>> = {
   "loss-value": "loss value",
   "gradient-sum": "gradient sum",
   "optimizer-constant": "optimizer epsilon",
+  "optimizer-second-moment": "optimizer second moment",
 };
-
-// one optimizer-constant site judges both Adam's epsilon and the stored second moment: name the one judged
-function hazardWords(hazard: HazardCheck, evaluation: HazardCheck["evaluations"][number]): string {
-  if (hazard.kind === "optimizer-constant" && evaluation.measure === "flushed-share") return "optimizer second moment";
-  return HAZARD_WORDS[hazard.kind];
-}
 
 /** The hazards section: one line per evaluation that is not "fits" (every evaluation with `all`). */
 export function renderHazards(hazards: readonly HazardCheck[], all: boolean, width: number, style: Style = PLAIN): string {
@@ -217,7 +212,7 @@ export function renderHazards(hazards: readonly HazardCheck[], all: boolean, wid
   for (const hazard of hazards) {
     for (const evaluation of hazard.evaluations) {
       if (!all && evaluation.verdict === "fits") continue;
-      const head = `  ${verdictText(evaluation.verdict, style)}  ${hazardWords(hazard, evaluation)}, ${hazard.layer}, ${evaluation.format}: `;
+      const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
       out += wrap(evaluation.sentence, width, head, "      ");
     }
   }

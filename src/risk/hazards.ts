@@ -242,6 +242,8 @@ function draftsFor(site: HazardSite, input: MagnitudeProfile, output: MagnitudeP
       return gradientSum(site, input, output, context, list);
     case "optimizer-constant":
       return optimizerConstant(site, input, context, list);
+    case "optimizer-second-moment":
+      return secondMoment(input, context, list);
   }
 }
 
@@ -453,28 +455,35 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
   }
 }
 
+// The stored second moment (1 − β2)·g² flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with
+// β2 = 0.999 (DESIGN.md §5 item 5). The input is the gradient profile, without the loss scale (removed before the
+// optimizer). Gives the gradient bound and the share of nonzero elements below it.
+function flushedSecondMoments(gradient: MagnitudeProfile, context: HazardContext): { bound: number; share: number } {
+  const bound = Math.sqrt(context.optimizerStates.flushBound / Math.max(1e-300, 1 - context.beta2));
+  return { bound, share: gradient.rms > 0 ? fractionBelow(gradient, bound) : 0 };
+}
+
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
-// is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero. The stored second
-// moment itself flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with β2 = 0.999 (DESIGN.md §5
-// item 5). The input is the gradient profile, without the loss scale (removed before the optimizer).
+// is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero.
 function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const limits = context.optimizerStates;
-  const t = context.thresholds;
-  // (1 − β2)·g² ≤ flush bound  ⇔  |g| ≤ √(flush bound / (1 − β2))
-  const gradientBound = Math.sqrt(limits.flushBound / Math.max(1e-300, 1 - context.beta2));
-  const flushedShare = gradient.rms > 0 ? fractionBelow(gradient, gradientBound) : 0;
   const epsilon = site.constant;
-  if (epsilon !== undefined) {
-    // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step
-    if (epsilon > limits.flushBound) {
-      fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
-        "fits", 0, EPSILON_KEPT, epsilon, false);
-    } else {
-      const zeros = gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedShare;
-      fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
-        zeros >= 1 ? "fails" : "at-risk", 0, EPSILON_FLUSHED, epsilon, false);
-    }
+  if (epsilon === undefined) return;
+  // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step
+  if (epsilon > limits.flushBound) {
+    fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
+      "fits", 0, EPSILON_KEPT, epsilon, false);
+  } else {
+    const flushedShare = flushedSecondMoments(gradient, context).share;
+    const zeros = gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedShare;
+    fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
+      zeros >= 1 ? "fails" : "at-risk", 0, EPSILON_FLUSHED, epsilon, false);
   }
-  putGraded(list, limits, "optimizerStates", "flushed-share", "second-moment-flushed", flushedShare, gradientBound,
+}
+
+function secondMoment(gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
+  const t = context.thresholds;
+  const { bound, share } = flushedSecondMoments(gradient, context);
+  putGraded(list, context.optimizerStates, "optimizerStates", "flushed-share", "second-moment-flushed", share, bound,
     t.flushedAtRisk, t.flushedFails, false, SECOND_MOMENT, 0, false);
 }

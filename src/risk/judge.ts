@@ -568,17 +568,32 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
   }
 
   const optimizer = training.optimizer;
-  if (!has("optimizer-constant") && (optimizer.kind === "adam" || optimizer.kind === "adamw")) {
+  if (optimizer.kind === "adam" || optimizer.kind === "adamw") {
+    // both judged at the smallest gradient: its second moments are the likeliest to flush, and there ε matters most
     const pick = byRms(weightGradients, "smallest");
-    sites.push({
-      kind: "optimizer-constant",
-      layer: pick?.tensor.layer ?? "optimizer",
-      input: pick?.profile ?? constantProfile(0),
-      terms: 1,
-      guarded: false,
-      constant: optimizer.epsilon,
-      detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} and second moments (β2 = ${optimizer.betas[1]}) in the optimizer-state format`,
-    });
+    const layer = pick?.tensor.layer ?? "optimizer";
+    const input = pick?.profile ?? constantProfile(0);
+    if (!has("optimizer-constant")) {
+      sites.push({
+        kind: "optimizer-constant",
+        layer,
+        input,
+        terms: 1,
+        guarded: false,
+        constant: optimizer.epsilon,
+        detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} in the optimizer-state format`,
+      });
+    }
+    if (!has("optimizer-second-moment")) {
+      sites.push({
+        kind: "optimizer-second-moment",
+        layer,
+        input,
+        terms: 1,
+        guarded: false,
+        detail: `${optimizer.kind} second moments (1 − β2)·g², β2 = ${optimizer.betas[1]}, in the optimizer-state format`,
+      });
+    }
   }
   return sites;
 }

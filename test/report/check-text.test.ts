@@ -25,7 +25,7 @@ describe("the optimizer section names where updates are added", () => {
   });
 });
 
-describe("hazard lines of the optimizer-constant site name what each judges", () => {
+describe("hazard lines name the kind of their site", () => {
   it("labels the epsilon line 'optimizer epsilon' and the second-moment line 'optimizer second moment'", () => {
     const lines = renderCheckText(check(example("deep-relu-he.yaml")), { all: true, width: 400 }).split("\n");
     const epsilon = lines.filter((line) => line.includes("The optimizer epsilon"));

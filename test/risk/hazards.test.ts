@@ -147,14 +147,21 @@ describe("gradient sums across workers", () => {
 describe("optimizer constants", () => {
   // ε = 1e-8 rounds to 0 in binary16 (|1e-8| < 2^-25); in bfloat16 it is 1.00117e-8 (SCIENCE.md §3.3, check 41)
   const adam = (gradient: MagnitudeProfile): HazardSite => site({ kind: "optimizer-constant", constant: 1e-8, input: gradient });
+  const secondMoment = (gradient: MagnitudeProfile): HazardSite => site({ kind: "optimizer-second-moment", input: gradient });
 
   it("ε = 1e-8 held in binary16 is flagged; with gradients whose (1 − β2)g² flushes it fails", () => {
     const small = evaluateHazard(adam(profile({ rms: 1e-4, elements: 1e5 })), context({ optimizerStates: BINARY16 }));
-    expect(small.findings[0]?.kind).toBe("optimizer-epsilon-flushed");
+    expect(small.findings.map((f) => f.kind)).toEqual(["optimizer-epsilon-flushed"]);
     expect(hazardVerdict(small)).toBe("fails");
+  });
+
+  it("the second moment is a site of its own kind, judged by the share of (1 − β2)g² that flushes", () => {
+    const small = evaluateHazard(secondMoment(profile({ rms: 1e-4, elements: 1e5 })), context({ optimizerStates: BINARY16 }));
+    expect(small.kind).toBe("optimizer-second-moment");
+    expect(small.evaluations.map((e) => [e.heldIn, e.measure])).toEqual([["optimizerStates", "flushed-share"]]);
     // |g| ≤ √(2^-25/0.001) ≈ 5.5e-3 flushes (1 − β2)·g² (DESIGN.md §5 item 5): nearly all of a gradient of rms 1e-4
-    expect(small.evaluations[1]?.criticalLevel).toBeCloseTo(Math.sqrt(2 ** -25 / 0.001), 12);
-    expect(small.findings.map((f) => f.kind)).toContain("second-moment-flushed");
+    expect(small.evaluations[0]?.criticalLevel).toBeCloseTo(Math.sqrt(2 ** -25 / 0.001), 12);
+    expect(small.findings.map((f) => [f.kind, f.severity])).toEqual([["second-moment-flushed", "fails"]]);
   });
 
   it("with large gradients and no zeros, ε rounding to zero is at risk rather than failing", () => {
@@ -243,6 +250,8 @@ describe("one layout for every result", () => {
     site({ kind: "gradient-sum", input, terms: 4, output: profile({ rms: 1e5, elements: 65536 }), end }),
     site({ kind: "optimizer-constant", input: profile({ rms: 1e-3, log2Spread: 1, elements: 65536 }), constant: 1e-8 }),
     site({ kind: "optimizer-constant", input, constant: 0.5, end }),
+    site({ kind: "optimizer-second-moment", input: profile({ rms: 1e-3, log2Spread: 1, elements: 65536 }) }),
+    site({ kind: "optimizer-second-moment", input, end }),
   ];
   const plans = [context(), context({ accumulate: BINARY16, workerGradients: "average", workers: 8, lossScale: 1024 })];
 

@@ -114,12 +114,17 @@ describe("judgePrediction", () => {
     expect(result.formats.map((f) => [f.format, f.planned, f.verdict])).toEqual([["bfloat16", false, "fits"]]);
   });
 
-  it("adds the training-setup hazards the prediction lacks: the loss value and Adam's epsilon", () => {
+  it("adds the training-setup hazards the prediction lacks: the loss value, Adam's epsilon and second moment", () => {
     const result = judgePrediction(spec(), PREDICTION);
     expect(result.hazards.map((h) => [h.kind, h.origin])).toEqual([
       ["loss-value", "training setup"],
       ["optimizer-constant", "training setup"],
+      ["optimizer-second-moment", "training setup"],
     ]);
+    // each Adam site judges one thing, so its kind names it
+    const measures = (kind: string) => result.hazards.find((h) => h.kind === kind)?.evaluations.map((e) => e.measure);
+    expect(new Set(measures("optimizer-constant"))).toEqual(new Set(["zero-second-moments"]));
+    expect(new Set(measures("optimizer-second-moment"))).toEqual(new Set(["flushed-share"]));
   });
 
   it("is plain JSON-able data and carries the caution", () => {
