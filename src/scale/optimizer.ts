@@ -94,7 +94,7 @@ export function stochasticStepsToAverage(updateRms: number, weightRms: number, f
 
 /** The update elements at one learning rate (unscaled gradients: the loss scale is removed before the optimizer). */
 function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr: number, firstStep: boolean): MagnitudeProfile {
-  const [beta1] = optimizer.betas;
+  const beta1 = optimizer.betas[0];
   switch (optimizer.kind) {
     case "sgd":
       return { ...scaleProfile(gradient, lr), zeroFraction: gradient.zeroFraction };
@@ -120,8 +120,14 @@ function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr:
   }
 }
 
-function schedule(optimizer: OptimizerSpec): { at: SchedulePoint; lr: number; firstStep: boolean }[] {
-  const points: { at: SchedulePoint; lr: number; firstStep: boolean }[] = [];
+interface SchedulePointRate {
+  at: SchedulePoint;
+  lr: number;
+  firstStep: boolean;
+}
+
+function schedule(optimizer: OptimizerSpec): SchedulePointRate[] {
+  const points: SchedulePointRate[] = [];
   const { peak, end } = optimizer.learningRate;
   // linear warm-up from near 0 (common practice); judged one hundredth of the way in (or at its first step when
   // shorter), since the very first updates of any warm-up are vanishingly small in every format
@@ -135,10 +141,15 @@ function schedule(optimizer: OptimizerSpec): { at: SchedulePoint; lr: number; fi
 
 /** Pair each weight with its weight gradient by layer and suffix (`dense-1/weight` ↔ `dense-1/weight-gradient`). */
 export function weightPairs(prediction: Prediction): { weight: TensorPrediction; gradient: TensorPrediction }[] {
+  const tensors = prediction.tensors;
   const gradients = new Map<string, TensorPrediction>();
-  for (const t of prediction.tensors) if (t.role === "weight-gradient") gradients.set(pairKey(t), t);
+  for (let i = 0; i < tensors.length; i++) {
+    const t = tensors[i] as TensorPrediction;
+    if (t.role === "weight-gradient") gradients.set(pairKey(t), t);
+  }
   const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
-  for (const t of prediction.tensors) {
+  for (let i = 0; i < tensors.length; i++) {
+    const t = tensors[i] as TensorPrediction;
     if (t.role !== "weight") continue;
     const g = gradients.get(pairKey(t));
     if (g) pairs.push({ weight: t, gradient: g });
@@ -146,9 +157,35 @@ export function weightPairs(prediction: Prediction): { weight: TensorPrediction;
   return pairs;
 }
 
+// the layer, and the id's suffix from its last colon when it has one
 function pairKey(t: TensorPrediction): string {
-  const suffix = t.id.includes(":") ? t.id.slice(t.id.lastIndexOf(":")) : "";
-  return `${t.layer}${suffix}`;
+  const colon = t.id.lastIndexOf(":");
+  return colon < 0 ? t.layer : t.layer + t.id.slice(colon);
+}
+
+// The updates of one weight at one point of the schedule, and their shares lost in each format (in the order the
+// sums were given: without a master copy, with a binary32 one, as planned, compensated).
+function updateLoss(
+  optimizer: OptimizerSpec,
+  sums: SwampingSums,
+  gradient: TensorPrediction,
+  w: MagnitudeProfile,
+  point: SchedulePointRate,
+  updateFormat: Format,
+): UpdateLoss {
+  const update = updateProfile(optimizer, point.at === "end" ? gradient.end : gradient.start, point.lr, point.firstStep);
+  const lost = sums.lost(w, update);
+  return {
+    at: point.at,
+    learningRate: point.lr,
+    updateRms: update.rms,
+    relativeLog2: Math.log2(update.rms / w.rms),
+    planned: lost[2] as number,
+    withoutMaster: lost[0] as number,
+    withBinary32Master: lost[1] as number,
+    compensated: lost[3] as number,
+    stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
+  };
 }
 
 export interface OptimizerCheckOptions {
@@ -173,33 +210,22 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
   const stateFlushBound = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal / 2;
   const stateOverflow = stateFormat.overflowThreshold;
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
-  const [beta1, beta2] = optimizer.betas;
+  const beta1 = optimizer.betas[0];
+  const beta2 = optimizer.betas[1];
 
   const points = schedule(optimizer);
   // lost shares: without a master copy, with a binary32 one, as planned, with compensated summation
   const sums = new SwampingSums([weightFormat, binary32, updateFormat, compensatedFormat]);
   const tensors: WeightOptimizerCheck[] = [];
   const gradientEnd = new Map<string, MagnitudeProfile>();
-  for (const { weight, gradient } of weightPairs(prediction)) {
+  const pairs = weightPairs(prediction);
+  for (let p = 0; p < pairs.length; p++) {
+    const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
     gradientEnd.set(weight.id, gradient.end);
     // the weights at the end of the horizon have grown; their ulp with them
     const w = weight.end;
-    const updates: UpdateLoss[] = points.map(({ at, lr, firstStep }) => {
-      const g = at === "end" ? gradient.end : gradient.start;
-      const update = updateProfile(optimizer, g, lr, firstStep);
-      const [withoutMaster = 0, withBinary32Master = 0, planned = 0, compensated = 0] = sums.lost(w, update);
-      return {
-        at,
-        learningRate: lr,
-        updateRms: update.rms,
-        relativeLog2: Math.log2(update.rms / w.rms),
-        planned,
-        withoutMaster,
-        withBinary32Master,
-        compensated,
-        stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
-      };
-    });
+    const updates: UpdateLoss[] = [];
+    for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, sums, gradient, w, points[j] as SchedulePointRate, updateFormat));
     let decayLost: number | null = null;
     if (optimizer.kind === "adamw" && optimizer.weightDecay > 0) {
       // decoupled decay subtracts lr·λ·w: a fixed fraction of each weight (Loshchilov & Hutter 2019)
@@ -368,7 +394,8 @@ function summarise(
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
   }
   const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
-  const decay = tensors.map((t) => t.decayLost ?? 0).reduce((a, b) => Math.max(a, b), 0);
+  let decay = 0;
+  for (let i = 0; i < tensors.length; i++) decay = Math.max(decay, (tensors[i] as WeightOptimizerCheck).decayLost ?? 0);
   const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
   if (decayFinding) {
     raise("at-risk");

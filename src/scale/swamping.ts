@@ -190,14 +190,14 @@ export class SwampingSums {
   // for each format, the first of the list with its precision and range: equal formats share one sum
   private readonly first: number[];
   // the lists already given, by update and weight: the same pair meets every format of this assessment at once
-  private readonly given = new Map<UpdateEntry, Map<WeightEntry, readonly number[]>>();
+  private readonly given = new Map<UpdateEntry, Map<WeightEntry, Float64Array>>();
 
   constructor(private readonly formats: readonly SwampingFormat[]) {
     this.first = formats.map((format) => formats.findIndex((f) => f.precision === format.precision && f.emin === format.emin));
   }
 
   /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
-  lost(weight: MagnitudeProfile, update: MagnitudeProfile): readonly number[] {
+  lost(weight: MagnitudeProfile, update: MagnitudeProfile): Float64Array {
     const w = weightEntry(weight);
     const u = updateEntry(update);
     let byWeight = this.given.get(u);
@@ -212,11 +212,13 @@ export class SwampingSums {
       known = [];
       u.sums.set(w, known);
     }
-    const lost: number[] = [];
+    // a typed list: its elements stay doubles whatever the first share is (a share of exactly 0 would start a plain
+    // list as small integers, and the optimised code that read it would be thrown away at the first fraction)
+    const lost = new Float64Array(this.formats.length);
     for (let i = 0; i < this.formats.length; i++) {
       const same = this.first[i] as number;
       if (same < i) {
-        lost.push(lost[same] as number);
+        lost[i] = lost[same] as number;
         continue;
       }
       const format = this.formats[i] as SwampingFormat;
@@ -231,7 +233,7 @@ export class SwampingSums {
         value = sumLost(w.law, w.binades, u.shares, format);
         known.push(format.precision, format.emin, value);
       }
-      lost.push(value);
+      lost[i] = value;
     }
     byWeight.set(w, lost);
     return lost;
