@@ -36,25 +36,43 @@ export interface ActivationStash {
 const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017; SCIENCE.md §2.9)";
 const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^q/n², 1/n) (derived; SCIENCE.md §2.10)";
 
-/** φ(0) and φ'(0) for the zero elements of an input (ReLU'(0) = 0 as implementations define it). */
-function atZero(name: ActivationName, slope: number): [number, number] {
+/**
+ * φ(0) and φ'(0) for the zero elements of an input (ReLU'(0) = 0 as implementations define it), one function each:
+ * a pair taken apart by destructuring runs the iterator protocol, much code for the optimising compiler.
+ */
+function valueAtZero(name: ActivationName): number {
   switch (name) {
+    case "sigmoid":
+      return 0.5;
+    case "softplus":
+      return Math.LN2;
     case "relu":
-      return [0, 0];
     case "leaky-relu":
-      return [0, slope];
     case "gelu":
     case "silu":
-      return [0, 0.5];
     case "tanh":
     case "identity":
-      return [0, 1];
-    case "sigmoid":
-      return [0.5, 0.25];
-    case "softplus":
-      return [Math.LN2, 0.5];
     case "softmax":
-      return [0, 0];
+      return 0;
+  }
+}
+
+function derivativeAtZero(name: ActivationName, slope: number): number {
+  switch (name) {
+    case "relu":
+    case "softmax":
+      return 0;
+    case "leaky-relu":
+      return slope;
+    case "gelu":
+    case "silu":
+    case "softplus":
+      return 0.5;
+    case "tanh":
+    case "identity":
+      return 1;
+    case "sigmoid":
+      return 0.25;
   }
 }
 
@@ -196,7 +214,8 @@ export function pointwiseForward(
   const keep = 1 - input.zeroFraction;
   const qNonzero = keep > 0 ? input.q / keep : 0;
   const m = ctx.moments(name, qNonzero, slope);
-  const [f0, d0] = atZero(name, slope);
+  const f0 = valueAtZero(name);
+  const d0 = derivativeAtZero(name, slope);
   const q = keep * m.second + input.zeroFraction * f0 * f0;
   const mean = keep * m.mean + input.zeroFraction * f0;
   const derivativeSecond = keep * m.derivativeSecond + input.zeroFraction * d0 * d0;
