@@ -109,9 +109,10 @@ function expandList(
   out: GraphLayer[],
 ): SampleShape | undefined {
   let current: SampleShape | undefined = shape;
-  for (const layer of list) {
+  // an indexed loop: a for-of wraps the body in a try block (iterator close), more code to compile
+  for (let i = 0; i < list.length; i++) {
     if (current === undefined || walk.aborted) return undefined;
-    current = expandOne(walk, layer, prefix, current, depth, out);
+    current = expandOne(walk, list[i] as LayerSpec, prefix, current, depth, out);
   }
   return current;
 }
@@ -164,6 +165,19 @@ function expandOne(
   }
 }
 
+/**
+ * Report a layer's issue; place's error paths call this module function, not a closure, so place allocates no
+ * closures and no context per layer.
+ */
+function failAt(walk: Walk, spec: ConcreteLayerSpec, name: string, message: string): undefined {
+  walk.issues.push({ path: spec.path, message: `${name}: ${message}` });
+  return undefined;
+}
+
+function needFeatures(walk: Walk, spec: ConcreteLayerSpec, name: string, input: SampleShape, kind: string): undefined {
+  return failAt(walk, spec, name, `${kind} needs a features input (positions × features), got ${describeShape(input)}; add a flatten first`);
+}
+
 function place(
   walk: Walk,
   spec: ConcreteLayerSpec,
@@ -172,37 +186,31 @@ function place(
   depth: number,
   out: GraphLayer[],
 ): SampleShape | undefined {
-  const fail = (message: string): undefined => {
-    walk.issues.push({ path: spec.path, message: `${name}: ${message}` });
-    return undefined;
-  };
-  if (walk.names.has(name)) return fail(`the name "${name}" is used twice; give the layers distinct names`);
+  if (walk.names.has(name)) return failAt(walk, spec, name, `the name "${name}" is used twice; give the layers distinct names`);
   walk.names.add(name);
   walk.count++;
   if (walk.count > MAX_LAYERS) {
     walk.aborted = true;
-    return fail(`the expanded network has more than ${MAX_LAYERS} layers; is a repeat count too large?`);
+    return failAt(walk, spec, name, `the expanded network has more than ${MAX_LAYERS} layers; is a repeat count too large?`);
   }
   if (!walk.placedAny && input.layout === "tokens" && spec.family !== "embedding") {
     walk.placedAny = true;
-    return fail(`token input must go through an embedding first, but the first layer is ${spec.family}`);
+    return failAt(walk, spec, name, `token input must go through an embedding first, but the first layer is ${spec.family}`);
   }
   walk.placedAny = true;
   if (input.layout === "tokens" && spec.family !== "embedding") {
-    return fail(`${spec.family} cannot take token ids; put an embedding first`);
+    return failAt(walk, spec, name, `${spec.family} cannot take token ids; put an embedding first`);
   }
 
   const weights: GraphWeight[] = [];
   let output: SampleShape;
   let branch: GraphLayer[] | undefined;
   const width = featureWidth(input);
-  const needFeatures = (kind: string): undefined =>
-    fail(`${kind} needs a features input (positions × features), got ${describeShape(input)}; add a flatten first`);
 
   switch (spec.family) {
     case "dense": {
-      if (input.layout !== "features") return needFeatures("dense");
-      if (!positive(spec.width)) return fail(`width must be a whole number of at least 1, got ${spec.width}`);
+      if (input.layout !== "features") return needFeatures(walk, spec, name, input, "dense");
+      if (!positive(spec.width)) return failAt(walk, spec, name, `width must be a whole number of at least 1, got ${spec.width}`);
       weights.push(matrix("weight", [spec.width, width], width, spec.width, spec.init));
       if (spec.bias) weights.push(zeroBias(spec.width));
       output = { layout: "features", positions: input.positions, features: spec.width };
@@ -210,15 +218,15 @@ function place(
     }
     case "conv2d": {
       if (input.layout !== "image") {
-        return fail(`conv2d needs an image input (channels × height × width), got ${describeShape(input)}${input.layout === "features" ? " (a flatten or dense earlier turned the image into features)" : ""}`);
+        return failAt(walk, spec, name, `conv2d needs an image input (channels × height × width), got ${describeShape(input)}${input.layout === "features" ? " (a flatten or dense earlier turned the image into features)" : ""}`);
       }
       if (!positive(spec.channels) || !positive(spec.kernel) || !positive(spec.stride)) {
-        return fail(`channels, kernel and stride must be whole numbers of at least 1`);
+        return failAt(walk, spec, name, `channels, kernel and stride must be whole numbers of at least 1`);
       }
       const height = convSize(input.height, spec.kernel, spec.stride, spec.padding);
       const widthOut = convSize(input.width, spec.kernel, spec.stride, spec.padding);
       if (height < 1 || widthOut < 1) {
-        return fail(`a ${spec.kernel}×${spec.kernel} kernel with stride ${spec.stride} and padding ${String(spec.padding)} leaves no output from a ${input.height}×${input.width} image`);
+        return failAt(walk, spec, name, `a ${spec.kernel}×${spec.kernel} kernel with stride ${spec.stride} and padding ${String(spec.padding)} leaves no output from a ${input.height}×${input.width} image`);
       }
       const k2 = spec.kernel * spec.kernel;
       weights.push(
@@ -229,8 +237,8 @@ function place(
       break;
     }
     case "embedding": {
-      if (input.layout !== "tokens") return fail(`an embedding needs token input and must be the first layer; it gets ${describeShape(input)}`);
-      if (!positive(spec.vocabulary) || !positive(spec.width)) return fail(`vocabulary and width must be whole numbers of at least 1`);
+      if (input.layout !== "tokens") return failAt(walk, spec, name, `an embedding needs token input and must be the first layer; it gets ${describeShape(input)}`);
+      if (!positive(spec.vocabulary) || !positive(spec.width)) return failAt(walk, spec, name, `vocabulary and width must be whole numbers of at least 1`);
       // the usual fan convention for a [vocabulary, width] table: fan-in = width, fan-out = vocabulary (common practice)
       weights.push(matrix("table", [spec.vocabulary, spec.width], spec.width, spec.vocabulary, spec.init));
       output = { layout: "features", positions: input.positions, features: spec.width };
@@ -251,16 +259,16 @@ function place(
     }
     case "average-pool":
     case "max-pool": {
-      if (!positive(spec.size) || !positive(spec.stride)) return fail(`size and stride must be whole numbers of at least 1`);
+      if (!positive(spec.size) || !positive(spec.stride)) return failAt(walk, spec, name, `size and stride must be whole numbers of at least 1`);
       if (input.layout === "image") {
         const height = Math.floor((input.height - spec.size) / spec.stride) + 1;
         const w = Math.floor((input.width - spec.size) / spec.stride) + 1;
-        if (height < 1 || w < 1) return fail(`a ${spec.size}×${spec.size} window does not fit a ${input.height}×${input.width} image`);
+        if (height < 1 || w < 1) return failAt(walk, spec, name, `a ${spec.size}×${spec.size} window does not fit a ${input.height}×${input.width} image`);
         output = { layout: "image", channels: input.channels, height, width: w };
       } else {
-        if (input.layout !== "features") return needFeatures(spec.family);
+        if (input.layout !== "features") return needFeatures(walk, spec, name, input, spec.family);
         const positions = Math.floor((input.positions - spec.size) / spec.stride) + 1;
-        if (positions < 1) return fail(`a window of ${spec.size} positions does not fit ${input.positions} positions`);
+        if (positions < 1) return failAt(walk, spec, name, `a window of ${spec.size} positions does not fit ${input.positions} positions`);
         output = { layout: "features", positions, features: input.features };
       }
       break;
@@ -269,20 +277,20 @@ function place(
       output = { layout: "features", positions: 1, features: sampleElements(input) };
       break;
     case "residual": {
-      if (spec.branch.length === 0) return fail(`the residual branch is empty`);
+      if (spec.branch.length === 0) return failAt(walk, spec, name, `the residual branch is empty`);
       const inner: GraphLayer[] = [];
       const end = expandList(walk, spec.branch, `${name}.`, input, depth + 1, inner);
       if (end === undefined) return undefined;
       if (!sameShape(end, input)) {
-        return fail(`the residual branch turns ${describeShape(input)} into ${describeShape(end)}; a branch must keep the shape so it can be added back`);
+        return failAt(walk, spec, name, `the residual branch turns ${describeShape(input)} into ${describeShape(end)}; a branch must keep the shape so it can be added back`);
       }
       branch = inner;
       output = input;
       break;
     }
     case "attention": {
-      if (input.layout !== "features") return needFeatures("attention");
-      if (!positive(spec.heads) || !positive(spec.headWidth)) return fail(`heads and head width must be whole numbers of at least 1`);
+      if (input.layout !== "features") return needFeatures(walk, spec, name, input, "attention");
+      if (!positive(spec.heads) || !positive(spec.headWidth)) return failAt(walk, spec, name, `heads and head width must be whole numbers of at least 1`);
       const inner = spec.heads * spec.headWidth;
       weights.push(
         matrix("query", [inner, width], width, inner, spec.init),
@@ -293,14 +301,14 @@ function place(
       output = input;
       const logits = walk.spec.training.batch * spec.heads * input.positions * input.positions;
       if (logits > ABSURD_ELEMENTS) {
-        fail(`its attention logits hold ${logits.toExponential(2)} elements per step (batch × heads × positions²); is a size wrong?`);
+        failAt(walk, spec, name, `its attention logits hold ${logits.toExponential(2)} elements per step (batch × heads × positions²); is a size wrong?`);
       }
       break;
     }
     case "gated-feed-forward": {
-      if (input.layout !== "features") return needFeatures("gated-feed-forward");
-      if (!positive(spec.hidden)) return fail(`hidden must be a whole number of at least 1, got ${spec.hidden}`);
-      if (spec.activation === "softmax") return fail(`the gate activation cannot be softmax; use a pointwise activation (silu, gelu, relu, ...)`);
+      if (input.layout !== "features") return needFeatures(walk, spec, name, input, "gated-feed-forward");
+      if (!positive(spec.hidden)) return failAt(walk, spec, name, `hidden must be a whole number of at least 1, got ${spec.hidden}`);
+      if (spec.activation === "softmax") return failAt(walk, spec, name, `the gate activation cannot be softmax; use a pointwise activation (silu, gelu, relu, ...)`);
       weights.push(
         matrix("gate", [spec.hidden, width], width, spec.hidden, spec.init),
         matrix("up", [spec.hidden, width], width, spec.hidden, spec.init),
@@ -313,10 +321,11 @@ function place(
 
   const elements = walk.spec.training.batch * sampleElements(output);
   if (elements > ABSURD_ELEMENTS) {
-    fail(`its output holds ${elements.toExponential(2)} elements per step (batch × ${describeShape(output)}); is a size wrong?`);
+    failAt(walk, spec, name, `its output holds ${elements.toExponential(2)} elements per step (batch × ${describeShape(output)}); is a size wrong?`);
   }
-  for (const weight of weights) {
-    if (weight.elements > ABSURD_ELEMENTS) fail(`its ${weight.name} holds ${weight.elements.toExponential(2)} elements; is a size wrong?`);
+  for (let i = 0; i < weights.length; i++) {
+    const weight = weights[i] as GraphWeight;
+    if (weight.elements > ABSURD_ELEMENTS) failAt(walk, spec, name, `its ${weight.name} holds ${weight.elements.toExponential(2)} elements; is a size wrong?`);
   }
 
   // every layer gets every key, in one order, and the family as the literal of FAMILIES: the magnitude engine and the
