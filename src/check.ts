@@ -8,7 +8,7 @@ import { FORMATS } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
 import { judgePrediction, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
-import { checkOptimizer, type OptimizerCheck } from "./scale/optimizer.js";
+import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
 import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
@@ -69,7 +69,12 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin
   const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null ? windowSummary(answer) : undefined;
   const judged = judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
-  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps);
+  // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
+  const stateHazards = judged.hazards
+    .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
+    .map((h) => h.kind)
+    .filter((kind): kind is OptimizerStateHazard => kind === "optimizer-constant" || kind === "optimizer-second-moment");
+  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards);
   // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
   const scaleVerdict: Verdict =
     answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";

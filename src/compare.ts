@@ -163,7 +163,8 @@ function firstProblem(result: CheckResult, optimizer: OptimizerCheck, answer: Lo
   if (answer?.window.empty) return answer.sentences[0] ?? null;
   const failing = result.formats.find((f) => f.verdict === "fails") ?? result.formats.find((f) => f.verdict === "at-risk");
   if (failing && (failing.verdict === "fails" || optimizer.verdict !== "fails")) return failing.reasons[0] ?? null;
-  return optimizer.reasons[0] ?? null;
+  // the optimizer's state findings are told by the hazards, so their sentence is among the formats' reasons
+  return optimizer.reasons[0] ?? failing?.reasons[0] ?? null;
 }
 
 function explain(ranked: PlanOutcome[]): string[] {

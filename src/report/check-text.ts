@@ -49,8 +49,14 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
     "  ",
     "  ",
   );
-  if (optimizer.reasons.length === 0) out += wrap("no update is lost and the states keep their values.", width, "  ", "  ");
+  if (optimizer.reasons.length === 0 && optimizer.reportedAsHazards.length === 0) {
+    out += wrap("no update is lost and the states keep their values.", width, "  ", "  ");
+  }
   for (const reason of optimizer.reasons) out += wrap(reason, width, "  - ", "    ");
+  if (optimizer.reportedAsHazards.length > 0) {
+    const named = optimizer.reportedAsHazards.map((kind) => HAZARD_WORDS[kind]).join(" and ");
+    out += wrap(`the states in ${optimizer.stateFormat}: see ${named} under Operation hazards.`, width, "  - ", "    ");
+  }
   optimizer.remedies.forEach((remedy, i) => (out += wrap(`remedy: ${remedy}`, width, `  ${i + 1}. `, "     ")));
   return out;
 }

@@ -4,7 +4,7 @@
  */
 import type { Format } from "../formats/index.js";
 import { getFormat, roundTo } from "../formats/index.js";
-import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
+import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { fractionBelow, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
@@ -55,6 +55,9 @@ export interface WeightOptimizerCheck {
 
 export type OptimizerVerdict = "fits" | "at-risk" | "fails";
 
+/** The hazard sites that judge the optimizer's states: Adam's epsilon and its stored second moment. */
+export type OptimizerStateHazard = Extract<HazardKind, "optimizer-constant" | "optimizer-second-moment">;
+
 export interface OptimizerCheck {
   kind: OptimizerSpec["kind"];
   /** where the update is added: the master copy's format, or the stored weights' format */
@@ -68,6 +71,9 @@ export interface OptimizerCheck {
   verdict: OptimizerVerdict;
   /** one sentence each, worst first */
   reasons: string[];
+  /** the states' findings told by the operation hazards of these kinds instead of in `reasons` (they still count
+   * in `verdict`, and their remedies stay in `remedies`) */
+  reportedAsHazards: OptimizerStateHazard[];
   /** remedies with their computed effect, best first (empty when nothing is lost) */
   remedies: string[];
 }
@@ -196,10 +202,17 @@ export interface OptimizerCheckOptions {
 /**
  * Assess the optimizer of a spec under a precision plan. `plannedSteps` (the horizon's training steps), when
  * given, is set against the steps stochastic rounding needs to average out, so a remedy that would not within
- * the run says so.
+ * the run says so. `hazards`: the state hazards whose findings the caller reports in the plan's state format (as
+ * `check` does); a state finding of those kinds is then left out of `reasons` and listed in `reportedAsHazards`.
  * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
  */
-export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, prediction: Prediction, plannedSteps?: number): OptimizerCheck {
+export function checkOptimizer(
+  optimizer: OptimizerSpec,
+  plan: PrecisionPlan,
+  prediction: Prediction,
+  plannedSteps?: number,
+  hazards: readonly OptimizerStateHazard[] = [],
+): OptimizerCheck {
   const weightFormat = getFormat(plan.weights);
   const stateFormat = getFormat(plan.optimizerStates);
   const master = plan.masterWeights === "none" ? null : getFormat(plan.masterWeights);
@@ -263,7 +276,7 @@ export function checkOptimizer(optimizer: OptimizerSpec, plan: PrecisionPlan, pr
       })()
     : null;
 
-  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps);
+  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps, hazards);
 }
 
 /** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
@@ -291,6 +304,7 @@ function summarise(
     gradientEnd: Map<string, MagnitudeProfile>;
   },
   plannedSteps: number | undefined,
+  hazards: readonly OptimizerStateHazard[],
 ): OptimizerCheck {
   let worst: OptimizerCheck["worst"] = null;
   let worstPeak = 0;
@@ -308,6 +322,12 @@ function summarise(
   }
   const reasons: string[] = [];
   const remedies: string[] = [];
+  const reportedAsHazards: OptimizerStateHazard[] = [];
+  // a state finding the operation hazards tell is named there once, not again here
+  const tell = (kind: OptimizerStateHazard, reason: string) => {
+    if (hazards.includes(kind)) reportedAsHazards.push(kind);
+    else reasons.push(reason);
+  };
   let verdict: OptimizerVerdict = "fits";
   const raise = (v: OptimizerVerdict) => {
     if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
@@ -407,7 +427,8 @@ function summarise(
 
   if (worstSecondMoment > OPTIMIZER_THRESHOLDS.momentFlushAtRisk) {
     raise("at-risk");
-    reasons.push(
+    tell(
+      "optimizer-second-moment",
       `${pct(worstSecondMoment)} of the second moments of ${worstSecondMomentTensor} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest subnormal).`,
     );
     // binary32 states only where they flush less: the same first-step bound with binary32's smallest value
@@ -427,7 +448,7 @@ function summarise(
   }
   if (epsilon?.vanishes) {
     raise(worstSecondMoment > 0 ? "fails" : "at-risk");
-    reasons.push(`epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; where a second moment is also 0 the update divides by zero.`);
+    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; where a second moment is also 0 the update divides by zero.`);
     // the smallest value the state format keeps: its smallest subnormal, or its smallest normal when subnormals flush
     const kept = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal;
     const raiseTo = `raise epsilon to at least ${roundedUp(kept)}`;
@@ -443,6 +464,7 @@ function summarise(
     worst,
     verdict,
     reasons,
+    reportedAsHazards,
     remedies,
   };
 }

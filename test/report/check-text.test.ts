@@ -36,3 +36,77 @@ describe("hazard lines name the kind of their site", () => {
     for (const line of moment) expect(line).toContain("optimizer second moment,");
   });
 });
+
+describe("binary16 optimizer states: each problem is told once", () => {
+  // 1e-8 is below binary16's flush bound 2^-25 = 2.98e-8 and rounds to zero (IEEE 754-2019, binary16 subnormals);
+  // (1 − β2)·g² flushes for |g| below √(2^-25/0.001) = 0.00546 (DESIGN.md §5 item 5)
+  const fixture = "test/fixtures/specs/hazards/adam-epsilon-binary16.yaml";
+  const spec = (): NetworkSpec => {
+    const parsed = parseSpec(readFileSync(fixture, "utf8"), fixture);
+    if (!parsed.ok) throw new Error(`${fixture} does not parse`);
+    return parsed.spec;
+  };
+  const section = (text: string, from: string, to: string) => text.slice(text.indexOf(from), text.indexOf(to));
+
+  it("the operation hazards tell the epsilon and the second moment; the optimizer section points there and gives the remedies", () => {
+    const text = renderCheckText(check(spec()), { width: 100 });
+    expect(section(text, "Optimizer adam", "Tensors at risk")).toBe(
+      [
+        "Optimizer adam: fails",
+        "  updates are added to a master copy in binary32; epsilon 1e-8 is held as 0 in binary16.",
+        "  - the states in binary16: see optimizer second moment and optimizer epsilon under Operation",
+        "    hazards.",
+        "  1. remedy: hold the optimizer states in binary32 instead of binary16: 6e-18% of the second moments",
+        "     flush at the first step instead of 38.8% (+4 bytes per parameter for the two states)",
+        "  2. remedy: compute the update in binary32, or raise epsilon to at least 5.97e-8",
+        "",
+        "",
+      ].join("\n"),
+    );
+    expect(section(text, "Operation hazards at risk", "Assumptions")).toBe(
+      [
+        "Operation hazards at risk",
+        "  fails  optimizer epsilon, dense-0, binary16: The optimizer epsilon 1e-8 rounds to zero in",
+        "      binary16, and about 6360 second-moment elements of dense-0 are zero per step, so the update",
+        "      divides by zero there.",
+        "  fails  optimizer second moment, dense-0, binary16: The second moment (1 − β2)·g² of dense-0",
+        "      flushes in binary16 for gradients below 0.00546: 38.8% of its elements (fails).",
+        "",
+        "",
+      ].join("\n"),
+    );
+    // the verdict and its top reasons still name both
+    expect(section(text, "Verdict fails", "Loss scale")).toBe(
+      [
+        "Verdict fails",
+        "",
+        "Verdict per format",
+        "  binary16  fails    holds activations, weights, gradients, optimizer states; 17 tensors",
+        "    - The optimizer epsilon 1e-8 rounds to zero in binary16, and about 6360 second-moment elements",
+        "      of dense-0 are zero per step, so the update divides by zero there.",
+        "    - The second moment (1 − β2)·g² of dense-0 flushes in binary16 for gradients below 0.00546:",
+        "      38.8% of its elements (fails).",
+        "  binary32  fits     holds accumulation; 0 tensors",
+        "",
+        "",
+      ].join("\n"),
+    );
+  });
+
+  it("the JSON keeps the sentences in hazards[] and says which the optimizer check leaves to them", async () => {
+    const { renderCheckJson } = await import("../../src/report/check-json.js");
+    const json = JSON.parse(renderCheckJson(check(spec())));
+    expect(json.verdict).toBe("fails");
+    expect(json.optimizer.verdict).toBe("fails");
+    expect(json.optimizer.reasons).toEqual([]);
+    expect(json.optimizer.reportedAsHazards).toEqual(["optimizer-second-moment", "optimizer-constant"]);
+    expect(json.optimizer.remedies).toHaveLength(2);
+    const findings = (kind: string) => json.hazards.filter((h: { kind: string }) => h.kind === kind).flatMap((h: { findings: unknown[] }) => h.findings);
+    expect(findings("optimizer-constant").map((f: { kind: string; severity: string; format: string }) => [f.kind, f.severity, f.format])).toEqual([
+      ["optimizer-epsilon-flushed", "fails", "binary16"],
+    ]);
+    expect(findings("optimizer-second-moment").map((f: { kind: string; severity: string; format: string }) => [f.kind, f.severity, f.format])).toEqual([
+      ["second-moment-flushed", "fails", "binary16"],
+    ]);
+  });
+});
