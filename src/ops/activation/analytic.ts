@@ -147,6 +147,24 @@ function allBelowNodes(): NonNullable<typeof allBelowTable> {
   return table;
 }
 
+/** Φ(−x_k)^n at allBelowZero's nodes, by n (a network has a few batch × positions counts), and where they reach zero. */
+const belowPowerCache = new Map<number, { power: Float64Array; end: number }>();
+
+function belowPowers(cdfBelow: Float64Array, n: number): { power: Float64Array; end: number } {
+  const hit = belowPowerCache.get(n);
+  if (hit !== undefined) return hit;
+  const power = new Float64Array(cdfBelow.length);
+  let end = 0;
+  for (let k = 0; k < cdfBelow.length; k++) {
+    power[k] = Math.pow(cdfBelow[k] as number, n);
+    if (power[k] !== 0) end = k + 1;
+  }
+  if (belowPowerCache.size >= 64) belowPowerCache.clear();
+  const entry = { power, end };
+  belowPowerCache.set(n, entry);
+  return entry;
+}
+
 /**
  * P(u_1 ≤ 0, …, u_n ≤ 0) for n standard Gaussians with common pairwise correlation c ≥ 0: writing
  * u_i = √c·s + √(1 − c)·e_i, it is E_s[Φ(−s·√(c/(1 − c)))^n], a one-dimensional integral over the shared component s
@@ -167,7 +185,9 @@ export function allBelowZero(c: number, n: number): number {
   // in u, below −9 every u_i is surely ≤ 0 and the density integrates to Φ(−9/r)
   let sum = r > 1 ? normalCdf(-ALL_BELOW_LIMIT / r) : 0;
   if (r > 1) {
-    for (let k = 0; k < x.length; k++) sum += ((w[k] as number) / r) * normalPdf((x[k] as number) / r) * Math.pow(cdfBelow[k] as number, n);
+    // Φ(−x)^n does not depend on c: taken from the table for n, up to its last nonzero entry (a zero term adds nothing)
+    const { power, end } = belowPowers(cdfBelow, n);
+    for (let k = 0; k < end; k++) sum += ((w[k] as number) / r) * normalPdf((x[k] as number) / r) * (power[k] as number);
   } else {
     for (let k = 0; k < x.length; k++) sum += (wPdf[k] as number) * Math.pow(normalCdf(-r * (x[k] as number)), n);
   }
