@@ -3,7 +3,7 @@
  * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, LN2 } from "./_math.js";
+import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -912,34 +912,69 @@ function latticeCover(from: number, to: number): void {
 // are unchanged), which leaves most of a wide window unevaluated. NaN limits: no such shortcut (closures).
 let latticeHighLimit = NaN;
 let latticeLowLimit = NaN;
+// g at lattice point m, evaluated once
+function latticeAt(m: number): number {
+  const at = m - latticeBase;
+  let value = lattice[at] as number;
+  if (value !== value) {
+    value = latticeValue(m * latticeStep);
+    lattice[at] = value;
+  }
+  return value;
+}
+// The lowest point of [from, to] that holds the limit `high` true (the high limit) or false (the low limit, read from
+// the other end: the highest point holding it), by steps doubling away from `centre` and then bisection: a sum whose
+// centre lies far past the step of g (the level of a small probability over a wide spread) meets the edge of its
+// limit stretch after a few evaluations instead of one per point. Bounds past the window: to + 1, from − 1.
+function latticeEdge(from: number, to: number, centre: number, high: boolean): number {
+  const limit = high ? latticeHighLimit : latticeLowLimit;
+  // inside: the points on the limit's side of the edge; outside: a point known not to hold it (or past the window)
+  let inside: number;
+  let outside: number;
+  const direction = high ? 1 : -1;
+  const end = high ? to + 1 : from - 1;
+  if (centre < from || centre > to) return end;
+  if (latticeAt(centre) === limit) {
+    // the edge is at or beyond the centre towards the other side
+    inside = centre;
+    let jump = 1;
+    outside = centre - direction;
+    while (outside >= from && outside <= to && latticeAt(outside) === limit) {
+      inside = outside;
+      jump *= 2;
+      outside = inside - direction * jump;
+    }
+    if (outside < from) outside = from - 1;
+    if (outside > to) outside = to + 1;
+  } else {
+    outside = centre;
+    let jump = 1;
+    inside = centre + direction;
+    while (inside >= from && inside <= to && latticeAt(inside) !== limit) {
+      outside = inside;
+      jump *= 2;
+      inside = outside + direction * jump;
+    }
+    if (inside > to || inside < from) inside = end;
+  }
+  while (Math.abs(inside - outside) > 1) {
+    const middle = Math.floor((inside + outside) / 2);
+    if (latticeAt(middle) === limit) inside = middle;
+    else outside = middle;
+  }
+  return inside;
+}
 // Returns the first point at and above the centre that holds the high limit (to + 1 when none does).
 function latticeFill(from: number, to: number, centre: number): number {
+  const top = latticeEdge(from, to, centre, true);
+  const bottom = latticeEdge(from, Math.min(to, top - 1), Math.min(centre, top - 1), false);
   const values = lattice;
-  let reached = false;
-  let first = to + 1;
-  for (let m = centre; m <= to; m++) {
+  for (let m = from; m <= to; m++) {
     const at = m - latticeBase;
-    let value = values[at] as number;
-    if (value !== value) {
-      value = reached ? latticeHighLimit : latticeValue(m * latticeStep);
-      values[at] = value;
-    }
-    if (!reached && value === latticeHighLimit) {
-      reached = true;
-      first = m;
-    }
+    if ((values[at] as number) === (values[at] as number)) continue;
+    values[at] = m <= bottom ? latticeLowLimit : m >= top ? latticeHighLimit : latticeValue(m * latticeStep);
   }
-  reached = false;
-  for (let m = centre - 1; m >= from; m--) {
-    const at = m - latticeBase;
-    let value = values[at] as number;
-    if (value !== value) {
-      value = reached ? latticeLowLimit : latticeValue(m * latticeStep);
-      values[at] = value;
-    }
-    if (value === latticeLowLimit) reached = true;
-  }
-  return first;
+  return Math.max(top, centre);
 }
 // the mixtures already summed in the current search (its bracket ends are summed twice)
 const MIXTURE_MEMO = 64;
@@ -1005,7 +1040,7 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
   latticeHighLimit = NaN;
   latticeLowLimit = NaN;
   const start = crossing(g, p, decreasing, (spread * DRAW_STEP) / 4);
-  const level = latticeCrossing(spread, p, decreasing, start);
+  const level = latticeCrossing(spread, p, decreasing, start, Math.round(1 / DRAW_STEP));
   latticeClosure = null;
   return level;
 }
@@ -1034,13 +1069,41 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
       return BELOW_LEVELS[slot] as number;
     }
   }
-  const start = crossing(latticeValue, p, decreasing, (spread * DRAW_STEP) / 4);
+  // The largest of n elements passes 2^v at the median scale as a step of g at v½ (g = 1/2) of some width σ: read as
+  // a Gaussian step, g = Q((v − v½)/σ), its mixture over the draws is Q((v − v½)/√(σ² + spread²)), which crosses p
+  // at v½ + √(σ² + spread²)·Q⁻¹(p), with σ = (v_p − v½)/Q⁻¹(p) from g's own crossing v_p. That is within a lattice
+  // point in most cases, so the search starts there with single-point steps. The bracket it finds is the same from
+  // any start (see latticeCrossing); only the number of sums changes.
+  const tolerance = (spread * DRAW_STEP) / 4;
+  let start = NaN;
+  let jump = Math.round(1 / DRAW_STEP);
+  if (decreasing && p < 0.25) {
+    // the Gaussian law's levels in closed form, where their error is a fraction of a lattice point
+    let half = NaN;
+    let level = NaN;
+    if (integrandLaw === GAUSSIAN && spread >= 0.25) {
+      half = gaussianMaxLevel(-Math.expm1(-LN2 / integrandCount));
+      level = gaussianMaxLevel(-Math.expm1(Math.log1p(-p) / integrandCount));
+    }
+    if (Number.isNaN(half) || Number.isNaN(level)) {
+      half = crossing(latticeValue, 0.5, true, tolerance);
+      level = crossing(latticeValue, p, true, tolerance);
+    }
+    const quantile = normalUpperQuantile(p);
+    const width = (level - half) / quantile;
+    start = half + Math.sqrt(width * width + spread * spread) * quantile;
+    jump = 1;
+  }
+  if (!Number.isFinite(start)) {
+    start = crossing(latticeValue, p, decreasing, tolerance);
+    jump = Math.round(1 / DRAW_STEP);
+  }
   // exceedance probabilities fall from 1 to 0, shares below a level rise from 0 to 1
   latticeHighLimit = decreasing ? 0 : 1;
   latticeLowLimit = decreasing ? 1 : 0;
   latticeTable = viaRows && !decreasing && integrandLaw === GAUSSIAN && spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD;
   latticeSpread = spread;
-  const level = latticeCrossing(spread, p, decreasing, start);
+  const level = latticeCrossing(spread, p, decreasing, start, jump);
   latticeTable = false;
   latticeHighLimit = NaN;
   latticeLowLimit = NaN;
@@ -1053,6 +1116,17 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
     BELOW_LEVELS[slot] = level;
   }
   return level;
+}
+
+// The level v where one Gaussian magnitude passes 2^v with probability q, erfc(u) = q with 2^v = √2·u (for the
+// largest of n passing with probability P, q = 1 − (1 − P)^{1/n}), from the leading term of erfc's asymptotic series,
+// erfc(u) ≈ e^{−u²}/(u√π) (Abramowitz & Stegun 7.1.23), iterated on u² = −ln(q·u·√π). A start of the search only,
+// good to a few hundredths of a binade for q below 1e-2; NaN above, where the search finds its own start.
+function gaussianMaxLevel(q: number): number {
+  if (!(q > 0 && q < 1e-2)) return NaN;
+  let u = Math.sqrt(-Math.log(q));
+  for (let k = 0; k < 3; k++) u = Math.sqrt(-Math.log(q * u * Math.sqrt(Math.PI)));
+  return Math.log2(SQRT2 * u);
 }
 
 // The levels of lawMixtureCrossing's "below" per (law, element spread, spread, p), direct-mapped on the spread's
@@ -1070,21 +1144,25 @@ function belowSlot(spread: number, p: number): number {
 
 // The lattice search of mixtureCrossing from a starting level. The computed mixture is monotone in j (rounding is
 // monotone, the weights positive), so the bracket found is the same from any start: the start only saves steps.
-function latticeCrossing(spread: number, p: number, decreasing: boolean, direct: number): number {
+// `firstJump`: the lattice points of the first step away from the start (doubling after it).
+function latticeCrossing(spread: number, p: number, decreasing: boolean, direct: number, firstJump: number): number {
   const step = spread * DRAW_STEP;
   latticeStep = step;
+  // a search with a far crossing (a spread near 0 puts the lattice points close together) grows the lattice; the
+  // next search starts from the usual size again rather than clearing the grown one each time
+  if (lattice.length > 2048) lattice = new Float64Array(2048);
   lattice.fill(NaN);
   mixtureCount = 0;
-  const start = Math.round(direct / step);
+  // + 0 turns a −0 from Math.round into +0, which the compiled lattice loops can keep as a small integer
+  const start = Math.round(direct / step) + 0;
   latticeBase = start - (lattice.length >> 1);
   const beyond = (j: number): boolean => (decreasing ? latticeMixture(j) <= p : latticeMixture(j) >= p);
   const limit = Math.ceil(2200 / step);
-  const sigma = Math.round(1 / DRAW_STEP);
   let lo: number;
   let hi: number;
   if (beyond(start)) {
     hi = start;
-    let jump = sigma;
+    let jump = firstJump;
     lo = start - jump;
     while (beyond(lo) && lo > -limit) {
       hi = lo;
@@ -1093,7 +1171,7 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
     }
   } else {
     lo = start;
-    let jump = sigma;
+    let jump = firstJump;
     hi = start + jump;
     while (!beyond(hi) && hi < limit) {
       lo = hi;

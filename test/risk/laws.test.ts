@@ -119,14 +119,31 @@ describe("draw sums of the element laws", () => {
   });
 
   // the Gaussian "below" levels read off the shared rows are checked against these in the next test
+  // the searches start from different levels and step differently (any-above from the step of g shifted by the
+  // spread, in single lattice points), so this also holds that the bracket found does not depend on the start
   it("lattice crossings equal mixtureCrossing with the law's closures", () => {
     for (const { profile } of sweep()) {
       if (profile.shape === "constant" || (profile.shape === "log-normal" && !(profile.elementLog2Spread! > 0))) continue;
       const { bound: _bound, ...unbounded } = profile;
       const law = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
       const n = nonzeroElements(profile);
-      expect(lawMixtureCrossing(profile, "any-above", 1e-3)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), n), profile.log2Spread, 1e-3, true));
+      for (const p of [0.3, 1e-3, 1e-9]) {
+        expect(lawMixtureCrossing(profile, "any-above", p)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), n), profile.log2Spread, p, true));
+      }
       expect(lawMixtureCrossing(profile, "below", 1e-2, false)).toBe(mixtureCrossing((v) => law.below(1, 2 ** v), profile.log2Spread, 1e-2, false));
+    }
+    // spreads near 0, where g's own step is as wide as the draws or wider (a log-normal law of nearly constant
+    // elements, a handful of elements)
+    for (const log2Spread of [1e-12, 0.01, 0.2]) {
+      for (const elements of [3, 2304, 1e6]) {
+        for (const profile of [
+          { elements, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread },
+          { elements, zeroFraction: 0, shape: "log-normal", rms: 1, log2Spread, elementLog2Spread: 1e-7 },
+        ] satisfies MagnitudeProfile[]) {
+          const law = elementLaw(profile);
+          expect(lawMixtureCrossing(profile, "any-above", 1e-3)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), elements), log2Spread, 1e-3, true));
+        }
+      }
     }
   });
 
