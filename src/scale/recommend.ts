@@ -260,7 +260,8 @@ class OverflowNarrowing implements OverflowBounds {
   // each tensor's bounds on p_i (equal once integrated)
   private readonly lows: Float64Array;
   readonly highs: Float64Array;
-  // per tensor: 0 a bound from a larger scale (or 1), 1 its segment upper bound here, 2 integrated
+  // per tensor: 0 a bound from a larger scale (or 1), 1 its segment upper bound here or its value at the larger scale
+  // (integrated next), 2 integrated
   private readonly state: Uint8Array;
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
@@ -330,6 +331,9 @@ class OverflowNarrowing implements OverflowBounds {
         if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
       } else {
         for (let i = 0; i < n; i++) {
+          // a tensor integrated there is integrated here when its turn comes, without a segment bound first: it was
+          // among the largest there, where the segment bound (up to twice the value) rarely places it lower
+          if (above.known(i)) this.state[i] = 1;
           highs[i] = above.known(i) ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
           if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
         }
