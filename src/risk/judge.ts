@@ -162,8 +162,8 @@ export function planFor(plan: PrecisionPlan, format: FormatName): PrecisionPlan 
 /** The formats a plan uses, in plan-entry order, each once. */
 export function planFormats(plan: PrecisionPlan): FormatName[] {
   const formats: FormatName[] = [];
-  for (const entry of PLAN_ENTRIES) {
-    const format = entryFormat(plan, entry);
+  for (let i = 0; i < PLAN_ENTRIES.length; i++) {
+    const format = entryFormat(plan, PLAN_ENTRIES[i] as PlanEntry);
     if (!formats.includes(format)) formats.push(format);
   }
   return formats;
@@ -198,7 +198,8 @@ function appliedLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLo
 function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {
   if (options.formats === undefined || options.formats.length === 0) return planFormats(plan);
   const formats: FormatName[] = [];
-  for (const name of options.formats) {
+  for (let i = 0; i < options.formats.length; i++) {
+    const name = options.formats[i] as FormatName;
     if (!isFormatName(name)) throw new RangeError(`unknown format "${String(name)}"; accepted: ${FORMAT_NAMES.join(", ")}`);
     if (!formats.includes(name)) formats.push(name);
   }
@@ -455,7 +456,10 @@ function judgeFormat(setting: FormatSetting, plan: PrecisionPlan, tensors: reado
   }
   const judgement = judge(findings);
   const holds: PlanEntry[] = [];
-  for (const entry of PLAN_ENTRIES) if (entryFormat(evaluated, entry) === format) holds.push(entry);
+  for (let i = 0; i < PLAN_ENTRIES.length; i++) {
+    const entry = PLAN_ENTRIES[i] as PlanEntry;
+    if (entryFormat(evaluated, entry) === format) holds.push(entry);
+  }
   return {
     format,
     planned: evaluated === plan,
@@ -513,10 +517,6 @@ function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest
  * across workers and accumulation steps, and Adam's epsilon. Added when the prediction has none of the kind.
  */
 export function trainingSites(spec: NetworkSpec, prediction: Prediction): HazardSite[] {
-  const has = (kind: HazardSite["kind"]): boolean => {
-    for (let i = 0; i < prediction.hazards.length; i++) if ((prediction.hazards[i] as HazardSite).kind === kind) return true;
-    return false;
-  };
   const weightGradients: TensorPrediction[] = [];
   for (let i = 0; i < prediction.tensors.length; i++) {
     const tensor = prediction.tensors[i] as TensorPrediction;
@@ -525,8 +525,8 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
   const training = spec.training;
   const sites: HazardSite[] = [];
 
-  if (!has("loss-value")) {
-    const lossTensor = prediction.tensors.find((tensor) => tensor.role === "loss");
+  if (!hasSite(prediction.hazards, "loss-value")) {
+    const lossTensor = lossTensorOf(prediction.tensors);
     const perTerm =
       lossTensor !== undefined
         ? lossTensor.start
@@ -551,7 +551,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
   }
 
   const contributions = training.workers * training.accumulationSteps;
-  if (!has("gradient-sum") && contributions > 1) {
+  if (!hasSite(prediction.hazards, "gradient-sum") && contributions > 1) {
     const pick = byRms(weightGradients, training.workerGradients === "sum" ? "largest" : "smallest");
     if (pick !== undefined) {
       sites.push({
@@ -573,7 +573,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
     const pick = byRms(weightGradients, "smallest");
     const layer = pick?.tensor.layer ?? "optimizer";
     const input = pick?.profile ?? constantProfile(0);
-    if (!has("optimizer-constant")) {
+    if (!hasSite(prediction.hazards, "optimizer-constant")) {
       sites.push({
         kind: "optimizer-constant",
         layer,
@@ -584,7 +584,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} in the optimizer-state format`,
       });
     }
-    if (!has("optimizer-second-moment")) {
+    if (!hasSite(prediction.hazards, "optimizer-second-moment")) {
       sites.push({
         kind: "optimizer-second-moment",
         layer,
@@ -596,6 +596,17 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
     }
   }
   return sites;
+}
+
+function hasSite(sites: readonly HazardSite[], kind: HazardSite["kind"]): boolean {
+  for (let i = 0; i < sites.length; i++) if ((sites[i] as HazardSite).kind === kind) return true;
+  return false;
+}
+
+// the first tensor of role "loss", as `find` would give it
+function lossTensorOf(tensors: readonly TensorPrediction[]): TensorPrediction | undefined {
+  for (let i = 0; i < tensors.length; i++) if ((tensors[i] as TensorPrediction).role === "loss") return tensors[i];
+  return undefined;
 }
 
 function constantProfile(value: number): MagnitudeProfile {
@@ -628,7 +639,8 @@ function checkAssumptions(
     "Overflow risk is the probability that at least one element of a step passes the overflow threshold, with " +
       "elements independent given the scale and the scale spread over draws as predicted.",
   );
-  for (const { format, evaluated } of settings) {
+  for (let i = 0; i < settings.length; i++) {
+    const { format, evaluated } = settings[i] as FormatSetting;
     if (evaluated !== plan) {
       const held = PLAN_ENTRIES.filter((entry) => evaluated[entry] === format);
       notes.push(`${format} is not in the plan; it is judged holding ${held.join(", ")} in place of the plan's formats.`);

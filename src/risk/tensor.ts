@@ -26,6 +26,12 @@ export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "we
  */
 export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
 
+// membership in GRADIENT_ROLES and LOSS_SCALED_ROLES (the same two roles) by comparison: `includes` is a loop that the
+// per-tensor functions would carry into every TurboFan compile of them
+function isGradientRole(role: TensorRole): boolean {
+  return role === "activation-gradient" || role === "weight-gradient";
+}
+
 /** The worse of the start and end numbers, and when each is worse. */
 export interface WorstRisk extends ProfileRisk {
   overflowAt: "start" | "end";
@@ -57,7 +63,7 @@ export interface TensorStatistics {
 
 /** The factor the loss scale contributes to a tensor of this role. */
 export function lossScaleFactor(role: TensorRole, lossScale: number): number {
-  return LOSS_SCALED_ROLES.includes(role) ? lossScale : 1;
+  return isGradientRole(role) ? lossScale : 1;
 }
 
 /** Statistics of a tensor's start and end profiles after its loss-scale factor. */
@@ -311,7 +317,7 @@ function tensorFindings(
       ].join(""),
     };
   }
-  if (GRADIENT_ROLES.includes(tensor.role)) {
+  if (isGradientRole(tensor.role)) {
     const energy = grade(worst.flushedEnergy, t.energyAtRisk, t.energyFails);
     if (energy !== null) {
       const threshold = energy === "fails" ? t.energyFails : t.energyAtRisk;

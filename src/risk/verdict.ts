@@ -30,7 +30,8 @@ function worse(a: Finding, b: Finding): Finding {
  */
 export function judge(findings: readonly Finding[]): Judgement {
   const groups = new Map<FindingKind, { worst: Finding; severity: Finding["severity"]; subjects: Set<string> }>();
-  for (const finding of findings) {
+  for (let i = 0; i < findings.length; i++) {
+    const finding = findings[i] as Finding;
     const group = groups.get(finding.kind);
     if (group === undefined) {
       groups.set(finding.kind, { worst: finding, severity: finding.severity, subjects: new Set([finding.subject]) });
