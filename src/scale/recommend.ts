@@ -182,14 +182,14 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
  */
 export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions, lowestScale = 1): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
-  const points = new Map<number, MagnitudeProfile[]>();
-  const at = (progress: number): MagnitudeProfile[] => {
-    let profiles = points.get(progress);
-    if (profiles === undefined) {
-      profiles = gradients.map((t) => profileAt(t, progress));
-      points.set(progress, profiles);
+  const points = new Map<number, HorizonPoint>();
+  const at = (progress: number): HorizonPoint => {
+    let point = points.get(progress);
+    if (point === undefined) {
+      point = new HorizonPoint(gradients, progress);
+      points.set(progress, point);
     }
-    return profiles;
+    return point;
   };
   const narrowings = new Map<number, [number, OverflowNarrowing][]>();
   const lead = { index: -1 };
@@ -213,8 +213,8 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
       return narrowing;
     },
     flushesTooMuch(scale: number, progress: number) {
-      const profiles = at(progress);
-      const n = profiles.length;
+      const point = at(progress);
+      const n = point.n;
       let known = flushing.get(progress);
       if (known === undefined) {
         known = { tolerated: new Float64Array(n).fill(Infinity), anchored: new Uint8Array(n) };
@@ -225,7 +225,7 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
       for (let i = 0; i < n; i++) {
         // the flushed share falls as the scale grows: a tensor within the tolerance at a smaller scale is within it here
         if (known.tolerated[i]! <= scale) continue;
-        const p = profiles[i]!;
+        const p = point.profile(i);
         if (known.anchored[i] === 0 && lowestScale <= scale) {
           // once per tensor and point: its cheap bound at the lowest scale the simulation takes, which then serves every
           // scale (widened for the rounding of evaluations at two thresholds)
@@ -241,6 +241,32 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
       return false;
     },
   };
+}
+
+/**
+ * The gradients' profiles at one point of the horizon, each made on first use: at a point where the tensor that
+ * overflowed most at the last point decides every step alone (its p_i = 1), the others are never made.
+ */
+class HorizonPoint {
+  readonly n: number;
+  private readonly profiles: (MagnitudeProfile | undefined)[];
+
+  constructor(
+    private readonly gradients: readonly TensorPrediction[],
+    private readonly progress: number,
+  ) {
+    this.n = gradients.length;
+    this.profiles = new Array<MagnitudeProfile | undefined>(this.n).fill(undefined);
+  }
+
+  profile(i: number): MagnitudeProfile {
+    let p = this.profiles[i];
+    if (p === undefined) {
+      p = profileAt(this.gradients[i]!, this.progress);
+      this.profiles[i] = p;
+    }
+    return p;
+  }
 }
 
 /**
@@ -271,14 +297,14 @@ class OverflowNarrowing implements OverflowBounds {
   private largest = -1;
 
   constructor(
-    private readonly profiles: readonly MagnitudeProfile[],
+    private readonly point: HorizonPoint,
     private readonly level: number,
     readonly scale = 1,
     private readonly above?: OverflowNarrowing,
     // the model's memory of the tensor with the largest p_i it last integrated (shared by its narrowings)
     private readonly lead: { index: number } = { index: -1 },
   ) {
-    const n = profiles.length;
+    const n = point.n;
     this.lows = new Float64Array(n);
     this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
@@ -293,8 +319,8 @@ class OverflowNarrowing implements OverflowBounds {
   /** The probability itself, every tensor integrated that can move the product. */
   value(): number {
     let none = 1;
-    for (let i = 0; i < this.profiles.length; i++) {
-      const p = this.profiles[i]!;
+    for (let i = 0; i < this.point.n; i++) {
+      const p = this.point.profile(i);
       let value: number;
       if (this.state[i] === 2) value = this.lows[i]!;
       // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
@@ -307,7 +333,7 @@ class OverflowNarrowing implements OverflowBounds {
   }
 
   private integrate(i: number): void {
-    const p = probabilityAnyAbove(this.profiles[i]!, this.level);
+    const p = probabilityAnyAbove(this.point.profile(i), this.level);
     this.lows[i] = p;
     this.highs[i] = p;
     this.state[i] = 2;
@@ -347,7 +373,7 @@ class OverflowNarrowing implements OverflowBounds {
         const i = this.heap.pop();
         if (this.state[i] === 0) {
           this.state[i] = 1;
-          const upper = probabilityAnyAboveUpper(this.profiles[i]!, this.level);
+          const upper = probabilityAnyAboveUpper(this.point.profile(i), this.level);
           if (upper < highs[i]!) highs[i] = upper;
           if (highs[i]! > 2 ** -54) this.heap.push(i);
           work -= 0.25;
@@ -374,11 +400,11 @@ class OverflowNarrowing implements OverflowBounds {
   private update(): void {
     let noneHigh = 1;
     let noneLow = 1;
-    for (let i = 0; i < this.profiles.length; i++) {
+    for (let i = 0; i < this.point.n; i++) {
       noneHigh *= 1 - this.lows[i]!;
       noneLow *= 1 - this.highs[i]!;
     }
-    const widen = 4 * (this.profiles.length + 2) * 2 ** -53;
+    const widen = 4 * (this.point.n + 2) * 2 ** -53;
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
