@@ -888,6 +888,12 @@ function crossing(f: (v: number) => number, p: number, decreasing: boolean, tole
 let lattice = new Float64Array(2048);
 let latticeBase = 0;
 let latticeStep = 0;
+// Lattice points are numbered from the search's start: point m stands at v = (origin + m)·step, the origin held in
+// LATTICE_ORIGIN. The numbers stay small integers when the start is far out in points (a spread near 0 puts them close
+// together), which keeps the compiled loops on small-integer arithmetic; origin + m is an integer below 2^53, so v is
+// the same as with the points numbered from v = 0. A Float64Array, not a module variable: one holding a small integer
+// in one search and a boxed double in the next sends the compiled readers back to the interpreter.
+const LATTICE_ORIGIN = new Float64Array(1);
 let latticeClosure: ((v: number) => number) | null = null;
 function latticeValue(v: number): number {
   if (latticeClosure !== null) return latticeClosure(v);
@@ -917,7 +923,7 @@ function latticeAt(m: number): number {
   const at = m - latticeBase;
   let value = lattice[at] as number;
   if (value !== value) {
-    value = latticeValue(m * latticeStep);
+    value = latticeValue(((LATTICE_ORIGIN[0] as number) + m) * latticeStep);
     lattice[at] = value;
   }
   return value;
@@ -972,7 +978,7 @@ function latticeFill(from: number, to: number, centre: number): number {
   for (let m = from; m <= to; m++) {
     const at = m - latticeBase;
     if ((values[at] as number) === (values[at] as number)) continue;
-    values[at] = m <= bottom ? latticeLowLimit : m >= top ? latticeHighLimit : latticeValue(m * latticeStep);
+    values[at] = m <= bottom ? latticeLowLimit : m >= top ? latticeHighLimit : latticeValue(((LATTICE_ORIGIN[0] as number) + m) * latticeStep);
   }
   return Math.max(top, centre);
 }
@@ -985,7 +991,7 @@ let mixtureCount = 0;
 function latticeMixture(j: number): number {
   for (let k = 0; k < mixtureCount; k++) if (MIXTURE_AT[k] === j) return MIXTURE_VALUE[k] as number;
   if (latticeTable) {
-    const value = gaussianTableValue(BELOW, latticeSpread, j * latticeStep);
+    const value = gaussianTableValue(BELOW, latticeSpread, ((LATTICE_ORIGIN[0] as number) + j) * latticeStep);
     if (!Number.isNaN(value)) return memoMixture(j, value);
   }
   const w = DRAW_NODES.w;
@@ -1005,7 +1011,7 @@ function latticeMixture(j: number): number {
   for (let i = skip; i < count; i++) {
     let value = values[offset - i] as number;
     if (value !== value) {
-      value = latticeValue((j + half - i) * latticeStep);
+      value = latticeValue(((LATTICE_ORIGIN[0] as number) + (j + half - i)) * latticeStep);
       values[offset - i] = value;
     }
     sum += (w[i] as number) * value;
@@ -1153,18 +1159,23 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
   if (lattice.length > 2048) lattice = new Float64Array(2048);
   lattice.fill(NaN);
   mixtureCount = 0;
-  // + 0 turns a −0 from Math.round into +0, which the compiled lattice loops can keep as a small integer
-  const start = Math.round(direct / step) + 0;
+  // the search starts at point 0; + 0 turns a −0 from Math.round into +0
+  const origin = Math.round(direct / step) + 0;
+  LATTICE_ORIGIN[0] = origin;
+  const start = 0;
   latticeBase = start - (lattice.length >> 1);
   const beyond = (j: number): boolean => (decreasing ? latticeMixture(j) <= p : latticeMixture(j) >= p);
+  // the points of ±2200 binades, counted from the start
   const limit = Math.ceil(2200 / step);
+  const lowest = -limit - origin;
+  const highest = limit - origin;
   let lo: number;
   let hi: number;
   if (beyond(start)) {
     hi = start;
     let jump = firstJump;
     lo = start - jump;
-    while (beyond(lo) && lo > -limit) {
+    while (beyond(lo) && lo > lowest) {
       hi = lo;
       jump *= 2;
       lo -= jump;
@@ -1173,7 +1184,7 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
     lo = start;
     let jump = firstJump;
     hi = start + jump;
-    while (!beyond(hi) && hi < limit) {
+    while (!beyond(hi) && hi < highest) {
       lo = hi;
       jump *= 2;
       hi += jump;
@@ -1189,5 +1200,5 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
   let fraction = 0.5;
   if (a > 0 && b > 0 && a !== b) fraction = (Math.log(p) - Math.log(a)) / (Math.log(b) - Math.log(a));
   else if (a !== b) fraction = (p - a) / (b - a);
-  return (lo + Math.min(1, Math.max(0, fraction))) * step;
+  return (origin + lo + Math.min(1, Math.max(0, fraction))) * step;
 }
