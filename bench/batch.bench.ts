@@ -5,10 +5,11 @@
  * dist/batch/worker.js). Prints specs per second and the pool's speed-up.
  *
  * For measurement only, the same batch also runs on a bench worker whose judge is nothing (it loads
- * what the real worker loads, then reads, parses and validates each spec and answers a fixed row):
+ * what the real worker loads, in the same form: one bundled file after `npm run build`, the separate
+ * modules after tsc alone; then it reads, parses and validates each spec and answers a fixed row):
  * the pipeline's own ceiling in specs per second, whatever check() costs.
  */
-import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
+import { mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { availableParallelism, loadavg, tmpdir } from "node:os";
 import { join } from "node:path";
 import { Worker } from "node:worker_threads";
@@ -17,18 +18,20 @@ import type { BatchInput } from "../src/batch/paths.js";
 import { runBatch } from "../src/batch/run.js";
 import { exampleSpecs, generatedSpec, writeSpecs } from "../test/batch/generate.js";
 import { specJsonSchema } from "../src/spec/index.js";
+import { bundleWorker } from "../scripts/bundle-worker.mjs";
 
 const COUNT = 1000;
 const WORKER = new URL("../dist/batch/worker.js", import.meta.url);
 const dir = mkdtempSync(join(tmpdir(), "headroom-bench-"));
 const dist = (path: string): string => JSON.stringify(new URL(`../dist/${path}`, import.meta.url).href);
-// the real worker's imports and task handling, with check() replaced by a fixed row
-const NO_CHECK_WORKER = new URL(`file://${join(dir, "no-check-worker.mjs")}`);
+// the real worker's imports and task handling, with check() replaced by a fixed row (check and the summary
+// are exported, so a bundle keeps their code as the real worker's does; they are never called)
+const NO_CHECK_SOURCE = join(dir, "no-check-worker.mjs");
 writeFileSync(
-  NO_CHECK_WORKER,
+  NO_CHECK_SOURCE,
   `import { readFileSync } from "node:fs";
-import ${dist("check.js")};
-import ${dist("report/summary.js")};
+export { check, loadSpecMeasurements } from ${dist("check.js")};
+export { summarizeCheck } from ${dist("report/summary.js")};
 import { serveTasks } from ${dist("batch/serve.js")};
 import { evaluateTask } from ${dist("batch/evaluate.js")};
 serveTasks((task) => evaluateTask(task, {
@@ -37,6 +40,10 @@ serveTasks((task) => evaluateTask(task, {
 }));
 `,
 );
+// the real worker is one file once `npm run build` has bundled it (no relative imports left)
+const realWorkerBundled = !/^import .* from "\.\.?\//m.test(readFileSync(WORKER, "utf8"));
+const NO_CHECK_WORKER = new URL(`file://${realWorkerBundled ? join(dir, "no-check-worker.bundle.mjs") : NO_CHECK_SOURCE}`);
+if (realWorkerBundled) await bundleWorker(NO_CHECK_SOURCE, join(dir, "no-check-worker.bundle.mjs"));
 // generated before any timing starts
 const examples = exampleSpecs();
 const schema = specJsonSchema();
