@@ -1075,7 +1075,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
       return BELOW_LEVELS[slot] as number;
     }
   }
-  // The largest of n elements passes 2^v at the median scale as a step of g at v½ (g = 1/2) of some width σ: read as
+  // Where the search starts. The largest of n elements passes 2^v at the median scale as a step of g at v½ (g = 1/2) of some width σ: read as
   // a Gaussian step, g = Q((v − v½)/σ), its mixture over the draws is Q((v − v½)/√(σ² + spread²)), which crosses p
   // at v½ + √(σ² + spread²)·Q⁻¹(p), with σ = (v_p − v½)/Q⁻¹(p) from g's own crossing v_p. That is within a lattice
   // point in most cases, so the search starts there with single-point steps. The bracket it finds is the same from
@@ -1098,6 +1098,12 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
     const quantile = normalUpperQuantile(p);
     const width = (level - half) / quantile;
     start = half + Math.sqrt(width * width + spread * spread) * quantile;
+    jump = 1;
+  } else if (!decreasing && integrandLaw === GAUSSIAN && spread >= 0.25 && p > 0 && p < 0.05) {
+    // A small share below a level sits where the Gaussian share is still linear, P(|Z| ≤ a) ≈ √(2/π)·a (Abramowitz &
+    // Stegun 7.1.5, first term), a = 2^(v − spread·z) over the draws, whose mean is 2^v·e^{(spread·ln 2)²/2} (the
+    // moments of a log-normal): a start within a tenth of a lattice point in the spreads and levels checked
+    start = Math.log2(p / Math.sqrt(2 / Math.PI)) - (spread * spread * LN2) / 2;
     jump = 1;
   }
   if (!Number.isFinite(start)) {
