@@ -223,50 +223,22 @@ export function checkOptimizer(
   const stateFlushBound = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal / 2;
   const stateOverflow = stateFormat.overflowThreshold;
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
-  const beta1 = optimizer.betas[0];
-  const beta2 = optimizer.betas[1];
 
   const points = schedule(optimizer);
   // lost shares: without a master copy, with a binary32 one, as planned, with compensated summation
   const sums = new SwampingSums([weightFormat, binary32, updateFormat, compensatedFormat]);
+  // decoupled decay subtracts lr·λ·w: a fixed fraction of each weight (Loshchilov & Hutter 2019), the same share lost
+  // for every weight
+  const decayLost =
+    optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(optimizer.learningRate.end * optimizer.weightDecay, updateFormat) : null;
+  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost };
   const tensors: WeightOptimizerCheck[] = [];
   const gradientEnd = new Map<string, MagnitudeProfile>();
   const pairs = weightPairs(prediction);
   for (let p = 0; p < pairs.length; p++) {
     const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
     gradientEnd.set(weight.id, gradient.end);
-    // the weights at the end of the horizon have grown; their ulp with them
-    const w = weight.end;
-    const updates: UpdateLoss[] = [];
-    for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, sums, gradient, w, points[j] as SchedulePointRate, updateFormat));
-    let decayLost: number | null = null;
-    if (optimizer.kind === "adamw" && optimizer.weightDecay > 0) {
-      // decoupled decay subtracts lr·λ·w: a fixed fraction of each weight (Loshchilov & Hutter 2019)
-      const ratio = optimizer.learningRate.end * optimizer.weightDecay;
-      decayLost = decoupledDecayLost(ratio, updateFormat);
-    }
-    const firstMoment = adamLike
-      ? scaleProfile(gradient.end, 1 - beta1)
-      : optimizer.kind === "momentum"
-        ? gradient.end
-        : null;
-    tensors.push({
-      weight: weight.id,
-      gradient: gradient.id,
-      weightRms: w.rms,
-      gradientRms: { start: gradient.start.rms, end: gradient.end.rms },
-      updates,
-      decayLost,
-      firstMomentFlushed: firstMoment ? fractionBelow(firstMoment, stateFlushBound) : 0,
-      secondMomentFlushed: adamLike
-        ? {
-            // (1−β2)·g² ≤ bound ⇔ |g| ≤ sqrt(bound/(1−β2)) (SCIENCE.md §3.3 / DESIGN.md §5 item 5)
-            firstStep: fractionBelow(gradient.end, Math.sqrt(stateFlushBound / (1 - beta2))),
-            settled: fractionBelow(gradient.end, Math.sqrt(stateFlushBound)),
-          }
-        : { firstStep: 0, settled: 0 },
-      secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(gradient.start, Math.sqrt(stateOverflow)) : 0,
-    });
+    tensors.push(weightCheck(context, weight, gradient));
   }
 
   const epsilon = adamLike
@@ -279,6 +251,50 @@ export function checkOptimizer(
   return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps, hazards);
 }
 
+// What every weight's check reads, fixed for one assessment.
+interface WeightCheckContext {
+  optimizer: OptimizerSpec;
+  points: SchedulePointRate[];
+  sums: SwampingSums;
+  updateFormat: Format;
+  stateFlushBound: number;
+  stateOverflow: number;
+  adamLike: boolean;
+  decayLost: number | null;
+}
+
+// One weight and its optimizer states, in a function of its own: the per-weight work that gets hot, apart from the
+// once-per-check setup around it.
+function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: TensorPrediction): WeightOptimizerCheck {
+  const { optimizer, points, adamLike, stateFlushBound } = c;
+  // the weights at the end of the horizon have grown; their ulp with them
+  const w = weight.end;
+  const updates: UpdateLoss[] = [];
+  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat));
+  const firstMoment = adamLike
+    ? scaleProfile(gradient.end, 1 - optimizer.betas[0])
+    : optimizer.kind === "momentum"
+      ? gradient.end
+      : null;
+  return {
+    weight: weight.id,
+    gradient: gradient.id,
+    weightRms: w.rms,
+    gradientRms: { start: gradient.start.rms, end: gradient.end.rms },
+    updates,
+    decayLost: c.decayLost,
+    firstMomentFlushed: firstMoment ? fractionBelow(firstMoment, stateFlushBound) : 0,
+    secondMomentFlushed: adamLike
+      ? {
+          // (1−β2)·g² ≤ bound ⇔ |g| ≤ sqrt(bound/(1−β2)) (SCIENCE.md §3.3 / DESIGN.md §5 item 5)
+          firstStep: fractionBelow(gradient.end, Math.sqrt(stateFlushBound / (1 - optimizer.betas[1]))),
+          settled: fractionBelow(gradient.end, Math.sqrt(stateFlushBound)),
+        }
+      : { firstStep: 0, settled: 0 },
+    secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(gradient.start, Math.sqrt(c.stateOverflow)) : 0,
+  };
+}
+
 /** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
 function decoupledDecayLost(ratio: number, format: Pick<Format, "precision">): number {
   // for w = m·2^e with m in [1, 2): lost when ratio·m < 2^-p, i.e. m < 2^-p/ratio; weights spread log-uniformly
@@ -287,6 +303,37 @@ function decoupledDecayLost(ratio: number, format: Pick<Format, "precision">): n
   if (bound <= 1) return 0;
   if (bound >= 2) return 1;
   return Math.log2(bound);
+}
+
+// The worst lost share under the plan and where, the worst at the peak learning rate, the tensor whose second
+// moments flush most at the first step and the largest decay loss: the one pass over the tensors, in a function of
+// its own (summarise then runs too little per check to be worth a large optimised compile)
+function worstFindings(tensors: readonly WeightOptimizerCheck[]): {
+  worst: OptimizerCheck["worst"];
+  worstPeak: number;
+  worstSecondMoment: number;
+  worstSecondMomentTensor: string;
+  decay: number;
+} {
+  let worst: OptimizerCheck["worst"] = null;
+  let worstPeak = 0;
+  let worstSecondMoment = 0;
+  let worstSecondMomentTensor = "";
+  let decay = 0;
+  for (let i = 0; i < tensors.length; i++) {
+    const t = tensors[i] as WeightOptimizerCheck;
+    for (let j = 0; j < t.updates.length; j++) {
+      const u = t.updates[j] as UpdateLoss;
+      if (!worst || u.planned > worst.lostShare) worst = { weight: t.weight, at: u.at, lostShare: u.planned };
+      if (u.at === "peak") worstPeak = Math.max(worstPeak, u.planned);
+    }
+    if (t.secondMomentFlushed.firstStep > worstSecondMoment) {
+      worstSecondMoment = t.secondMomentFlushed.firstStep;
+      worstSecondMomentTensor = t.weight;
+    }
+    decay = Math.max(decay, t.decayLost ?? 0);
+  }
+  return { worst, worstPeak, worstSecondMoment, worstSecondMomentTensor, decay };
 }
 
 function summarise(
@@ -306,20 +353,7 @@ function summarise(
   plannedSteps: number | undefined,
   hazards: readonly OptimizerStateHazard[],
 ): OptimizerCheck {
-  let worst: OptimizerCheck["worst"] = null;
-  let worstPeak = 0;
-  let worstSecondMoment = 0;
-  let worstSecondMomentTensor = "";
-  for (const t of tensors) {
-    for (const u of t.updates) {
-      if (!worst || u.planned > worst.lostShare) worst = { weight: t.weight, at: u.at, lostShare: u.planned };
-      if (u.at === "peak") worstPeak = Math.max(worstPeak, u.planned);
-    }
-    if (t.secondMomentFlushed.firstStep > worstSecondMoment) {
-      worstSecondMoment = t.secondMomentFlushed.firstStep;
-      worstSecondMomentTensor = t.weight;
-    }
-  }
+  const { worst, worstPeak, worstSecondMoment, worstSecondMomentTensor, decay } = worstFindings(tensors);
   const reasons: string[] = [];
   const remedies: string[] = [];
   const reportedAsHazards: OptimizerStateHazard[] = [];
@@ -414,8 +448,6 @@ function summarise(
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
   }
   const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
-  let decay = 0;
-  for (let i = 0; i < tensors.length; i++) decay = Math.max(decay, (tensors[i] as WeightOptimizerCheck).decayLost ?? 0);
   const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
   if (decayFinding) {
     raise("at-risk");
