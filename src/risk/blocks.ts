@@ -30,47 +30,104 @@ export interface BlockScaledRisk {
 export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flushBound">, blockSize = 32): BlockScaledRisk {
   if (!(Number.isInteger(blockSize) && blockSize >= 2)) throw new RangeError(`blockSize must be an integer ≥ 2. Value: ${blockSize}`);
   const n = blockSize;
-  const others = n - 1;
-  // P(|Z| ≤ t) and E[Z²; |Z| ≤ t] for Z ~ N(0, 1): 2Φ(t) − 1 and (2Φ(t) − 1) − 2tφ(t) (integration by parts)
-  const below = (t: number) => Math.max(0, 2 * normalCdf(t) - 1);
-  const energyBelow = (t: number) => Math.max(0, below(t) - 2 * t * normalPdf(t));
   const totalEnergy = n; // E[Σ Z²] over a block
-
-  let flushed = 0;
-  let clipped = 0;
-  let flushedEnergy = 0;
-  let mass = 0;
-  // density of the block maximum u of n |Z|: n · 2φ(u) · (2Φ(u) − 1)^(n−1); trapezoid on a fine grid
-  const lo = 1e-3;
-  const hi = 9;
-  const steps = 3000;
-  const h = (hi - lo) / steps;
-  for (let i = 0; i <= steps; i++) {
-    const u = lo + i * h;
-    const weight = (i === 0 || i === steps ? 0.5 : 1) * h;
-    const inside = below(u);
-    const density = n * 2 * normalPdf(u) * inside ** others;
-    if (!(density > 0)) continue;
-    const shared = Math.floor(Math.log2(u)) - format.emax;
-    const X = 2 ** shared;
-    const flushLevel = X * format.flushBound;
-    const clipLevel = X * format.maxFinite;
-    // the other elements of the block are independent |Z| conditioned below u
-    const g = (t: number) => (inside > 0 ? Math.min(1, below(Math.min(t, u)) / inside) : 0);
-    const flushedHere = others * g(flushLevel);
-    const clippedHere = (u > clipLevel ? 1 : 0) + (clipLevel < u ? others * (1 - g(clipLevel)) : 0);
-    const energyHere = inside > 0 ? (others * energyBelow(Math.min(flushLevel, u))) / inside : 0;
-    flushed += weight * density * flushedHere;
-    clipped += weight * density * clippedHere;
-    flushedEnergy += weight * density * energyHere;
-    mass += weight * density;
-  }
+  const sums = new Float64Array(4);
+  blockSums(blockGrid(n), n - 1, format.emax, format.flushBound, format.maxFinite, sums);
+  const mass = sums[3] as number;
   return {
     blockSize: n,
-    flushedFraction: flushed / mass / n,
-    flushedEnergy: flushedEnergy / mass / totalEnergy,
-    clippedFraction: clipped / mass / n,
+    flushedFraction: (sums[0] as number) / mass / n,
+    flushedEnergy: (sums[2] as number) / mass / totalEnergy,
+    clippedFraction: (sums[1] as number) / mass / n,
   };
+}
+
+// P(|Z| ≤ t) for Z ~ N(0, 1): 2Φ(t) − 1
+function below(t: number): number {
+  return Math.max(0, 2 * normalCdf(t) - 1);
+}
+
+/**
+ * The grid of the block maximum u of blockScaledRisk, with what does not depend on the format: the trapezoid weight,
+ * P(|Z| ≤ u), the density n·2φ(u)·(2Φ(u) − 1)^(n−1) of the maximum of n |Z|, and ⌊log2 u⌋. Built once per block size
+ * and shared by every format (the same expressions, so the same values as computed per format).
+ */
+interface BlockGrid {
+  u: Float64Array;
+  weight: Float64Array;
+  inside: Float64Array;
+  density: Float64Array;
+  binade: Float64Array;
+}
+
+const grids = new Map<number, BlockGrid>();
+
+function blockGrid(n: number): BlockGrid {
+  let grid = grids.get(n);
+  if (grid === undefined) {
+    // trapezoid on a fine grid of u
+    const lo = 1e-3;
+    const hi = 9;
+    const steps = 3000;
+    const h = (hi - lo) / steps;
+    grid = {
+      u: new Float64Array(steps + 1),
+      weight: new Float64Array(steps + 1),
+      inside: new Float64Array(steps + 1),
+      density: new Float64Array(steps + 1),
+      binade: new Float64Array(steps + 1),
+    };
+    fillBlockGrid(grid, n, lo, h, steps);
+    grids.set(n, grid);
+  }
+  return grid;
+}
+
+function fillBlockGrid(grid: BlockGrid, n: number, lo: number, h: number, steps: number): void {
+  const others = n - 1;
+  for (let i = 0; i <= steps; i++) {
+    const u = lo + i * h;
+    const inside = below(u);
+    grid.u[i] = u;
+    grid.weight[i] = (i === 0 || i === steps ? 0.5 : 1) * h;
+    grid.inside[i] = inside;
+    grid.density[i] = n * 2 * normalPdf(u) * inside ** others;
+    grid.binade[i] = Math.floor(Math.log2(u));
+  }
+}
+
+/**
+ * The four trapezoid sums of blockScaledRisk over the grid, into sums[0 … 3]: flushed elements, clipped elements,
+ * flushed energy and the mass of the density, kept in `sums` as they are added (a loop optimised while it runs
+ * has no type feedback for code after it).
+ */
+function blockSums(grid: BlockGrid, others: number, emax: number, flushBound: number, maxFinite: number, sums: Float64Array): void {
+  const { u: us, weight: weights, inside: insides, density: densities, binade } = grid;
+  sums[0] = 0;
+  sums[1] = 0;
+  sums[2] = 0;
+  sums[3] = 0;
+  for (let i = 0; i < us.length; i++) {
+    const density = densities[i] as number;
+    if (!(density > 0)) continue;
+    const u = us[i] as number;
+    const weight = weights[i] as number;
+    const inside = insides[i] as number;
+    const X = 2 ** ((binade[i] as number) - emax);
+    const flushLevel = X * flushBound;
+    const clipLevel = X * maxFinite;
+    // the other elements of the block are independent |Z| conditioned below u: a share g(t) = P(|Z| ≤ min(t, u))/P(|Z| ≤ u)
+    // of them lies below t, and E[Z²; |Z| ≤ t] = (2Φ(t) − 1) − 2tφ(t) (integration by parts)
+    const flushAt = Math.min(flushLevel, u);
+    const belowFlush = below(flushAt);
+    const flushedHere = others * (inside > 0 ? Math.min(1, belowFlush / inside) : 0);
+    const clippedHere = (u > clipLevel ? 1 : 0) + (clipLevel < u ? others * (1 - (inside > 0 ? Math.min(1, below(clipLevel) / inside) : 0)) : 0);
+    const energyHere = inside > 0 ? (others * Math.max(0, belowFlush - 2 * flushAt * normalPdf(flushAt))) / inside : 0;
+    sums[0] += weight * density * flushedHere;
+    sums[1] += weight * density * clippedHere;
+    sums[2] += weight * density * energyHere;
+    sums[3] += weight * density;
+  }
 }
 
 const cache = new Map<string, BlockScaledRisk>();
