@@ -809,6 +809,24 @@ function rowSum(kind: number, a: number, k: number): number {
   row.values[k - row.base] = sum;
   return sum;
 }
+// log F of row a at x_k, kept beside the rows (a point is read by every patch that covers it, up to 36 of them); 1
+// where F is outside (0, ROWS_UPPER_SHARE], which the table leaves to the direct rule
+const ROW_LOGS: (Window | undefined)[] = [];
+function rowLog(kind: number, a: number, k: number): number {
+  const slot = 2 * a + (kind === BELOW ? 0 : 1);
+  let row = ROW_LOGS[slot];
+  if (row === undefined) {
+    row = { base: 0, values: new Float64Array(0) };
+    ROW_LOGS[slot] = row;
+  }
+  if (!(k >= row.base && k < row.base + row.values.length)) coverWindow(row, k, k);
+  let log = row.values[k - row.base] as number;
+  if (log === log) return log;
+  const value = rowSum(kind, a, k);
+  log = value > 0 && value <= ROWS_UPPER_SHARE ? Math.log(value) : 1;
+  row.values[k - row.base] = log;
+  return log;
+}
 // Lagrange weights at s over the points 0 … TABLE_POINTS − 1
 const X_WEIGHTS = new Float64Array(TABLE_POINTS);
 const S_WEIGHTS = new Float64Array(TABLE_POINTS);
@@ -833,9 +851,9 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
   const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
   for (let r = 0; r < TABLE_POINTS; r++) {
     for (let k = 0; k < TABLE_POINTS; k++) {
-      const value = rowSum(kind, firstRow + r, first + k);
-      if (!(value > 0 && value <= ROWS_UPPER_SHARE)) return NaN;
-      PATCH[r * TABLE_POINTS + k] = Math.log(value);
+      const log = rowLog(kind, firstRow + r, first + k);
+      if (log > 0) return NaN;
+      PATCH[r * TABLE_POINTS + k] = log;
     }
   }
   lagrangeWeights(X_WEIGHTS, u - first);
