@@ -812,14 +812,19 @@ function rowSum(kind: number, a: number, k: number): number {
 // log F of row a at x_k, kept beside the rows (a point is read by every patch that covers it, up to 36 of them); 1
 // where F is outside (0, ROWS_UPPER_SHARE], which the table leaves to the direct rule
 const ROW_LOGS: (Window | undefined)[] = [];
-function rowLog(kind: number, a: number, k: number): number {
+// the window of row a's logs, covering x_from … x_to
+function rowLogs(kind: number, a: number, from: number, to: number): Window {
   const slot = 2 * a + (kind === BELOW ? 0 : 1);
   let row = ROW_LOGS[slot];
   if (row === undefined) {
     row = { base: 0, values: new Float64Array(0) };
     ROW_LOGS[slot] = row;
   }
-  if (!(k >= row.base && k < row.base + row.values.length)) coverWindow(row, k, k);
+  if (!(from >= row.base && to < row.base + row.values.length)) coverWindow(row, from, to);
+  return row;
+}
+function rowLog(kind: number, a: number, k: number): number {
+  const row = rowLogs(kind, a, k, k);
   let log = row.values[k - row.base] as number;
   if (log === log) return log;
   const value = rowSum(kind, a, k);
@@ -838,6 +843,8 @@ function lagrangeWeights(into: Float64Array, s: number): void {
   }
 }
 const PATCH = new Float64Array(TABLE_POINTS * TABLE_POINTS);
+// the point S_WEIGHTS were last taken at (NaN: never)
+const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
 // the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
 // direct rule decides
 function gaussianTableValue(kind: number, spread: number, x: number): number {
@@ -850,14 +857,23 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
   const u = x / ROW_STEP;
   const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
   for (let r = 0; r < TABLE_POINTS; r++) {
+    const row = rowLogs(kind, firstRow + r, first, first + TABLE_POINTS - 1);
+    const values = row.values;
+    const at = first - row.base;
     for (let k = 0; k < TABLE_POINTS; k++) {
-      const log = rowLog(kind, firstRow + r, first + k);
+      let log = values[at + k] as number;
+      if (log !== log) log = rowLog(kind, firstRow + r, first + k);
       if (log > 0) return NaN;
       PATCH[r * TABLE_POINTS + k] = log;
     }
   }
   lagrangeWeights(X_WEIGHTS, u - first);
-  lagrangeWeights(S_WEIGHTS, v - firstRow);
+  // the calls for one profile share its spread
+  const s = v - firstRow;
+  if (s !== S_WEIGHTS_AT[0]) {
+    lagrangeWeights(S_WEIGHTS, s);
+    S_WEIGHTS_AT[0] = s;
+  }
   let result = 0;
   for (let r = 0; r < TABLE_POINTS; r++) {
     let row = 0;
