@@ -82,8 +82,6 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
   const curves = boundedLossScaleCurves(prediction.tensors, limits);
-  const ids = new Set(curves.map((c) => c.id));
-  const gradients = prediction.tensors.filter((t) => ids.has(t.id));
   // the remedies' windows are this one with tensors set aside: one search serves them all
   const windowWithout = lossScaleWindows(curves, windowOptions);
   const window = windowWithout();
@@ -96,19 +94,24 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
           inside: !window.empty && Math.log2(plan.lossScale) >= window.lowestLog2! && Math.log2(plan.lossScale) <= window.highestLog2!,
         };
 
-  const byId = new Map(gradients.map((t) => [t.id, t] as const));
-  const dynamic =
-    window.empty || options.simulate === "always"
-      ? simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, { ...DEFAULT_DYNAMIC_SCALE, ...options.dynamic }.lowestScale), {
-          steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
-          seed: options.seed ?? 1,
-          horizonPoints: 8,
-          ...(options.dynamic ? { settings: options.dynamic } : {}),
-        })
-      : null;
+  // the gradient tensors themselves are needed only to simulate a dynamic scale (and for the remedies, which come
+  // with it): most answers, a window found, never gather them
+  let gradients: TensorPrediction[] = [];
+  let dynamic: DynamicScaleResult | null = null;
+  if (window.empty || options.simulate === "always") {
+    const ids = new Set(curves.map((c) => c.id));
+    gradients = prediction.tensors.filter((t) => ids.has(t.id));
+    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, { ...DEFAULT_DYNAMIC_SCALE, ...options.dynamic }.lowestScale), {
+      steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
+      seed: options.seed ?? 1,
+      horizonPoints: 8,
+      ...(options.dynamic ? { settings: options.dynamic } : {}),
+    });
+  }
 
   const sentences = describe(window, format, windowOptions, requested);
-  const remedies = window.empty && dynamic ? rankRemedies(windowWithout, byId, window, windowOptions, plan, dynamic) : [];
+  const remedies =
+    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, dynamic) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
