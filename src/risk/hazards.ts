@@ -6,9 +6,10 @@ import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
 import { elementLaw, overDraws } from "./laws.js";
-import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
+import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { flushedSecondMoments, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -455,14 +456,6 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
   }
 }
 
-// The stored second moment (1 − β2)·g² flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with
-// β2 = 0.999 (DESIGN.md §5 item 5). The input is the gradient profile, without the loss scale (removed before the
-// optimizer). Gives the gradient bound and the share of nonzero elements below it.
-function flushedSecondMoments(gradient: MagnitudeProfile, context: HazardContext): { bound: number; share: number } {
-  const bound = Math.sqrt(context.optimizerStates.flushBound / Math.max(1e-300, 1 - context.beta2));
-  return { bound, share: gradient.rms > 0 ? fractionBelow(gradient, bound) : 0 };
-}
-
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
 // is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero.
 function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
@@ -474,16 +467,15 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
       "fits", 0, EPSILON_KEPT, epsilon, false);
   } else {
-    const flushedShare = flushedSecondMoments(gradient, context).share;
-    const zeros = gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedShare;
+    const zeros = zeroSecondMoments(gradient, limits.flushBound, context.beta2);
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
-      zeros >= 1 ? "fails" : "at-risk", 0, EPSILON_FLUSHED, epsilon, false);
+      vanishedEpsilonVerdict(zeros), 0, EPSILON_FLUSHED, epsilon, false);
   }
 }
 
 function secondMoment(gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const t = context.thresholds;
-  const { bound, share } = flushedSecondMoments(gradient, context);
+  const { bound, share } = flushedSecondMoments(gradient, context.optimizerStates.flushBound, context.beta2);
   putGraded(list, context.optimizerStates, "optimizerStates", "flushed-share", "second-moment-flushed", share, bound,
     t.flushedAtRisk, t.flushedFails, false, SECOND_MOMENT, 0, false);
 }

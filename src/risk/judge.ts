@@ -18,6 +18,7 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
+import { byRms } from "./second-moments.js";
 import { scaledTensor, scaledTensorRisk, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -489,27 +490,6 @@ function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number
     workers: spec.training.workers,
     thresholds,
   };
-}
-
-function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest"): { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined {
-  let bestTensor: TensorPrediction | undefined;
-  let bestProfile: MagnitudeProfile | undefined;
-  let bestRms = 0;
-  for (let i = 0; i < tensors.length; i++) {
-    const tensor = tensors[i] as TensorPrediction;
-    // the start profile, then the end one
-    for (let k = 0; k < 2; k++) {
-      const profile = k === 0 ? tensor.start : tensor.end;
-      const rms = profile.rms;
-      if (!(rms > 0)) continue;
-      if (bestProfile === undefined || (pick === "largest" ? rms > bestRms : rms < bestRms)) {
-        bestTensor = tensor;
-        bestProfile = profile;
-        bestRms = rms;
-      }
-    }
-  }
-  return bestTensor === undefined || bestProfile === undefined ? undefined : { tensor: bestTensor, profile: bestProfile };
 }
 
 /**

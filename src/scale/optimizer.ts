@@ -5,7 +5,8 @@
 import type { Format } from "../formats/index.js";
 import { getFormat, roundTo } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { fractionBelow, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
+import { fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
+import { epsilonSiteGradients, vanishedEpsilonVerdict, zeroSecondMoments } from "../risk/second-moments.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -247,8 +248,18 @@ export function checkOptimizer(
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
+  // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
+  // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
+  let zerosPerStep = 0;
+  if (epsilon?.vanishes) {
+    const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
+    const gradients = epsilonSiteGradients(prediction);
+    for (let i = 0; i < gradients.length; i++) {
+      zerosPerStep = Math.max(zerosPerStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, flushBound, optimizer.betas[1]));
+    }
+  }
 
-  return summarise(optimizer, plan, tensors, epsilon, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps, hazards);
+  return summarise(optimizer, plan, tensors, epsilon, zerosPerStep, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps, hazards);
 }
 
 // What every weight's check reads, fixed for one assessment.
@@ -341,6 +352,7 @@ function summarise(
   plan: PrecisionPlan,
   tensors: WeightOptimizerCheck[],
   epsilon: OptimizerCheck["epsilon"],
+  zerosPerStep: number,
   formats: {
     weightFormat: Format;
     stateFormat: Format;
@@ -479,8 +491,12 @@ function summarise(
     }
   }
   if (epsilon?.vanishes) {
-    raise(worstSecondMoment > 0 ? "fails" : "at-risk");
-    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; where a second moment is also 0 the update divides by zero.`);
+    raise(vanishedEpsilonVerdict(zerosPerStep));
+    const where =
+      zerosPerStep >= 1
+        ? `about ${zerosPerStep.toPrecision(3)} second moments are 0 per step, so the update divides by zero there.`
+        : "where a second moment is also 0 the update divides by zero.";
+    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}`);
     // the smallest value the state format keeps: its smallest subnormal, or its smallest normal when subnormals flush
     const kept = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal;
     const raiseTo = `raise epsilon to at least ${roundedUp(kept)}`;

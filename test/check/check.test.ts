@@ -52,6 +52,25 @@ describe("purpose-built hazards, end to end", () => {
     expect(inBinary32.formats.flatMap((f) => f.findings.map((x) => x.kind))).not.toContain("optimizer-epsilon-flushed");
   });
 
+  // README.md's thresholds table: a vanishing epsilon is at risk, and fails when at least one zero second moment is
+  // expected per step; the optimizer check, the hazard it points to and the folded verdict must say the same
+  it.each([
+    ["0.75", "fails"],
+    ["1.5", "at-risk"],
+  ])("epsilon rounding to 0 in binary16 states, input scale %s: %s in the hazard, the optimizer check and the verdict", (scale, expected) => {
+    const result = check(load(`${HAZARDS}/adam-epsilon-boundary.yaml`, (t) => t.replace("scale: 0.75", `scale: ${scale}`)));
+    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant");
+    const zeros = epsilon?.evaluations.find((e) => e.format === "binary16")?.value ?? Number.NaN;
+    // the spec sits on either side of one expected zero per step, with margin
+    expect(expected === "fails" ? zeros > 1.2 : zeros < 0.8).toBe(true);
+    expect(epsilon?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", expected]]);
+    expect(result.optimizer.epsilon?.vanishes).toBe(true);
+    expect(result.optimizer.reportedAsHazards).toContain("optimizer-constant");
+    expect(result.optimizer.verdict).toBe(expected);
+    expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
+    expect(result.verdict).toBe(expected);
+  });
+
   it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {
     const result = check(load(`${HAZARDS}/loss-sum-reduction.yaml`));
     expect(kinds(result, "binary16")).toContain("loss-value-overflow");

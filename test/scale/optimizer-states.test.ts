@@ -74,3 +74,39 @@ describe("checkOptimizer: Adam's states in the optimizer-state format", () => {
     expect(single.epsilon?.vanishes).toBe(false);
   });
 });
+
+describe("checkOptimizer: a vanishing epsilon fails only when a zero second moment is expected per step", () => {
+  // the rule of README.md's thresholds table and FINDING_INFO (src/risk/catalogue.ts): epsilon rounding to 0 is at
+  // risk, and fails when at least one second moment per step is expected to be zero (an update divides by zero)
+  const gradient = (profile: Partial<MagnitudeProfile>): Prediction => ({
+    specName: "test",
+    tensors: [
+      tensor("dense-0/weight", "weight", constant(0.05)),
+      tensor("dense-0/weight-gradient", "weight-gradient", { elements: 1000, zeroFraction: 0, shape: "constant", rms: 1e-2, log2Spread: 0, ...profile }),
+    ],
+    hazards: [],
+    assumptions: [],
+  });
+  // (1 − β2)·g² flushes in binary16 for |g| ≤ √(2^-25/0.001) ≈ 5.46e-3 (DESIGN.md §5 item 5; IEEE 754-2019 binary16)
+  const bound = Math.sqrt(2 ** -25 / 1e-3);
+
+  it("exactly zero gradients: 0.5 expected per step is at risk, 2 fail (constant |g| = 1e-2 stays above the bound)", () => {
+    const half = checkOptimizer(adam, plan("binary16"), gradient({ zeroFraction: 0.0005 }));
+    expect(half.epsilon?.vanishes).toBe(true);
+    expect(half.verdict).toBe("at-risk");
+    expect(checkOptimizer(adam, plan("binary16"), gradient({ zeroFraction: 0.002 })).verdict).toBe("fails");
+  });
+
+  it("flushed second moments: about 0.48 expected per step is at risk, about 2.4 fail", () => {
+    // P(|Z| ≤ x) = erf(x/√2) ≈ x·√(2/π) for small x (Taylor series of erf, Abramowitz & Stegun 7.1.5): 1000
+    // Gaussian gradients with bound/rms = 6e-4 give about 0.48 flushed, with bound/rms = 3e-3 about 2.4
+    const few = checkOptimizer(adam, plan("binary16"), gradient({ shape: "gaussian", rms: bound / 6e-4 }));
+    expect(few.tensors[0]!.secondMomentFlushed.firstStep).toBeGreaterThan(0);
+    expect(few.tensors[0]!.secondMomentFlushed.firstStep * 1000).toBeCloseTo(6e-4 * Math.sqrt(2 / Math.PI) * 1000, 3);
+    expect(few.verdict).toBe("at-risk");
+    const some = checkOptimizer(adam, plan("binary16"), gradient({ shape: "gaussian", rms: bound / 3e-3 }));
+    expect(some.tensors[0]!.secondMomentFlushed.firstStep * 1000).toBeCloseTo(3e-3 * Math.sqrt(2 / Math.PI) * 1000, 2);
+    expect(some.verdict).toBe("fails");
+  });
+});
+

@@ -1,0 +1,71 @@
+/**
+ * Adam's second moments and its epsilon: the count of zero second moments per step, the one rule that grades a
+ * vanishing epsilon, and the gradient it is judged at. Shared by the operation hazards (./hazards.ts) and the
+ * optimizer check (src/scale/optimizer.ts) so that one problem gets one severity. Not part of the public API.
+ */
+import type { HazardSite, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
+import { fractionBelow, nonzeroElements } from "./profile.js";
+import type { Verdict } from "./types.js";
+
+// The stored second moment (1 − β2)·g² flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with
+// β2 = 0.999 (DESIGN.md §5 item 5). The gradient is without the loss scale (removed before the optimizer).
+// Gives the gradient bound and the share of nonzero elements below it.
+export function flushedSecondMoments(gradient: MagnitudeProfile, flushBound: number, beta2: number): { bound: number; share: number } {
+  const bound = Math.sqrt(flushBound / Math.max(1e-300, 1 - beta2));
+  return { bound, share: gradient.rms > 0 ? fractionBelow(gradient, bound) : 0 };
+}
+
+/** Second moments expected to be zero in one step: the exactly zero gradients and those whose (1 − β2)·g² flushes. */
+export function zeroSecondMoments(gradient: MagnitudeProfile, flushBound: number, beta2: number): number {
+  return gradient.elements * gradient.zeroFraction + nonzeroElements(gradient) * flushedSecondMoments(gradient, flushBound, beta2).share;
+}
+
+/**
+ * An epsilon that rounds to zero: at risk, and fails when at least one zero second moment is expected per step,
+ * since m/(√v + ε) then divides by zero somewhere every step (Kingma & Ba 2015, the update; README.md thresholds).
+ */
+export function vanishedEpsilonVerdict(zerosPerStep: number): Verdict {
+  return zerosPerStep >= 1 ? "fails" : "at-risk";
+}
+
+/**
+ * The gradients Adam's epsilon and second moment are judged at: the prediction's own optimizer-constant site
+ * when it has one (its input, and its input at the end when it has one), else the weight gradient of smallest rms
+ * (start or end), whose second moments flush most.
+ */
+export function epsilonSiteGradients(prediction: Prediction): MagnitudeProfile[] {
+  const hazards = prediction.hazards;
+  for (let i = 0; i < hazards.length; i++) {
+    const site = hazards[i] as HazardSite;
+    if (site.kind === "optimizer-constant") return site.end === undefined ? [site.input] : [site.input, site.end.input];
+  }
+  const weightGradients: TensorPrediction[] = [];
+  for (let i = 0; i < prediction.tensors.length; i++) {
+    const tensor = prediction.tensors[i] as TensorPrediction;
+    if (tensor.role === "weight-gradient") weightGradients.push(tensor);
+  }
+  return [byRms(weightGradients, "smallest")?.profile ?? { elements: 1, zeroFraction: 0, shape: "constant", rms: 0, log2Spread: 0 }];
+}
+
+/** The tensor (and its start or end profile) of largest or smallest positive rms. */
+export function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "smallest"): { tensor: TensorPrediction; profile: MagnitudeProfile } | undefined {
+  let bestTensor: TensorPrediction | undefined;
+  let bestProfile: MagnitudeProfile | undefined;
+  let bestRms = 0;
+  for (let i = 0; i < tensors.length; i++) {
+    const tensor = tensors[i] as TensorPrediction;
+    // the start profile, then the end one
+    for (let k = 0; k < 2; k++) {
+      const profile = k === 0 ? tensor.start : tensor.end;
+      const rms = profile.rms;
+      if (!(rms > 0)) continue;
+      if (bestProfile === undefined || (pick === "largest" ? rms > bestRms : rms < bestRms)) {
+        bestTensor = tensor;
+        bestProfile = profile;
+        bestRms = rms;
+      }
+    }
+  }
+  return bestTensor === undefined || bestProfile === undefined ? undefined : { tensor: bestTensor, profile: bestProfile };
+}
+
