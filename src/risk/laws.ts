@@ -705,29 +705,38 @@ export function lawOverDrawsBounds(
 ): [number, number] {
   const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, false);
-  if (!Number.isNaN(decided)) return [decided, decided];
+  if (!Number.isNaN(decided)) return bounds(decided, decided);
   return drawBounds(profile.rms, profile.log2Spread, inner);
 }
 
+// [low, high], an array of doubles from its first use: a literal of the integers 0 or 1 (a probability decided for
+// every draw) starts as an array of small integers, and the first fraction after it sent the compiled drawBounds back
+// to the interpreter (a deopt and a third compile in every worker)
+function bounds(low: number, high: number): [number, number] {
+  const pair: [number, number] = [0.5, 0.5];
+  pair[0] = low;
+  pair[1] = high;
+  return pair;
+}
 function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, number] {
   if (!(log2Spread > 0)) {
     const value = integrand(rms);
-    return [value, value];
+    return bounds(value, value);
   }
   // 2^(spread·z) at the nodes, as 2 ** (log2Spread * z) (z = ±9, ±4 exactly)
   const factors = nodeFactors(log2Spread);
   const a = integrand(rms * factorAt(factors, 0, log2Spread));
   const b = integrand(rms * factorAt(factors, factors.length - 1, log2Spread));
-  if (a === b) return [Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a))];
+  if (a === b) return bounds(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
   const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
   const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12));
-  if (!inner || outerLow === outerHigh) return [outerLow, outerHigh];
+  if (!inner || outerLow === outerHigh) return bounds(outerLow, outerHigh);
   const c = integrand(rms * factorAt(factors, INNER_LOW_NODE, log2Spread));
   const d = integrand(rms * factorAt(factors, INNER_HIGH_NODE, log2Spread));
   const inside = 1 - INNER_OUTSIDE;
   const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
   const high = Math.min(1, (Math.max(c, d) * inside + INNER_OUTSIDE) * (1 + 1e-9));
-  return [Math.max(outerLow, low), Math.min(outerHigh, high)];
+  return bounds(Math.max(outerLow, low), Math.min(outerHigh, high));
 }
 
 // Shared tables of the Gaussian shares. The Gaussian law's below(r, t) and energyBelow(r, t) depend on t/r alone,
