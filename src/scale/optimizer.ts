@@ -195,11 +195,6 @@ function updateLoss(
   };
 }
 
-export interface OptimizerCheckOptions {
-  /** limit the per-tensor list to the worst N (all are assessed); default: all */
-  keep?: number;
-}
-
 /**
  * Assess the optimizer of a spec under a precision plan. `plannedSteps` (the horizon's training steps), when
  * given, is set against the steps stochastic rounding needs to average out, so a remedy that would not within

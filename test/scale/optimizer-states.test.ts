@@ -1,6 +1,8 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
 import { checkOptimizer } from "../../src/scale/optimizer.js";
+// @ts-expect-error checkOptimizer takes no options object: the per-tensor list is never cut (typecheck: npx tsc -p tsconfig.json)
+import type { OptimizerCheckOptions } from "../../src/scale/optimizer.js";
 import type { OptimizerSpec, PrecisionPlan } from "../../src/spec/types.js";
 
 const adam: OptimizerSpec = {
@@ -107,6 +109,22 @@ describe("checkOptimizer: a vanishing epsilon fails only when a zero second mome
     const some = checkOptimizer(adam, plan("binary16"), gradient({ shape: "gaussian", rms: bound / 3e-3 }));
     expect(some.tensors[0]!.secondMomentFlushed.firstStep * 1000).toBeCloseTo(3e-3 * Math.sqrt(2 / Math.PI) * 1000, 2);
     expect(some.verdict).toBe("fails");
+  });
+});
+
+describe("checkOptimizer: the per-tensor list", () => {
+  it("lists every weight tensor paired with its gradient, in the prediction's order (no option cuts it)", () => {
+    const layer = (i: number): TensorPrediction[] => [
+      { ...tensor(`dense-${i}/weight`, "weight", constant(0.05)), layer: `dense-${i}`, layerIndex: i },
+      { ...tensor(`dense-${i}/weight-gradient`, "weight-gradient", constant(1e-2 * (i + 1))), layer: `dense-${i}`, layerIndex: i },
+    ];
+    const three: Prediction = { specName: "test", tensors: [...layer(0), ...layer(1), ...layer(2)], hazards: [], assumptions: [] };
+    const result = checkOptimizer(adam, plan("binary16"), three);
+    expect(result.tensors.map((t) => [t.weight, t.gradient])).toEqual([
+      ["dense-0/weight", "dense-0/weight-gradient"],
+      ["dense-1/weight", "dense-1/weight-gradient"],
+      ["dense-2/weight", "dense-2/weight-gradient"],
+    ]);
   });
 });
 
