@@ -298,6 +298,11 @@ class OverflowNarrowing implements OverflowBounds {
   private readonly heap: IndexHeap;
   private batch = 1;
   private largest = -1;
+  // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
+  // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product
+  private readonly size: number;
+  private readonly lowFactors: Float64Array;
+  private readonly highFactors: Float64Array;
 
   constructor(
     private readonly point: HorizonPoint,
@@ -312,6 +317,31 @@ class OverflowNarrowing implements OverflowBounds {
     this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
     this.heap = new IndexHeap(this.highs);
+    let size = 1;
+    while (size < n) size *= 2;
+    this.size = size;
+    this.lowFactors = new Float64Array(2 * size).fill(1);
+    this.highFactors = new Float64Array(2 * size).fill(1);
+  }
+
+  // the trees from the bounds, once they are first set
+  private buildProducts(): void {
+    const n = this.point.n;
+    const size = this.size;
+    for (let i = 0; i < n; i++) {
+      this.lowFactors[size + i] = 1 - this.lows[i]!;
+      this.highFactors[size + i] = 1 - this.highs[i]!;
+    }
+    for (let j = size - 1; j >= 1; j--) {
+      this.lowFactors[j] = this.lowFactors[2 * j]! * this.lowFactors[2 * j + 1]!;
+      this.highFactors[j] = this.highFactors[2 * j]! * this.highFactors[2 * j + 1]!;
+    }
+  }
+
+  private setFactor(tree: Float64Array, i: number, factor: number): void {
+    let j = this.size + i;
+    tree[j] = factor;
+    for (j >>= 1; j >= 1; j >>= 1) tree[j] = tree[2 * j]! * tree[2 * j + 1]!;
   }
 
   /** whether p_i is known exactly */
@@ -340,6 +370,8 @@ class OverflowNarrowing implements OverflowBounds {
     this.lows[i] = p;
     this.highs[i] = p;
     this.state[i] = 2;
+    this.setFactor(this.lowFactors, i, 1 - p);
+    this.setFactor(this.highFactors, i, 1 - p);
     if (this.largest < 0 || p > this.lows[this.largest]!) {
       this.largest = i;
       this.lead.index = i;
@@ -367,6 +399,7 @@ class OverflowNarrowing implements OverflowBounds {
           if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
         }
       }
+      this.buildProducts();
       if (first >= 0) this.integrate(first);
       for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.heap.push(i);
     } else {
@@ -377,7 +410,10 @@ class OverflowNarrowing implements OverflowBounds {
         if (this.state[i] === 0) {
           this.state[i] = 1;
           const upper = probabilityAnyAboveUpper(this.point.profile(i), this.level);
-          if (upper < highs[i]!) highs[i] = upper;
+          if (upper < highs[i]!) {
+            highs[i] = upper;
+            this.setFactor(this.highFactors, i, 1 - upper);
+          }
           if (highs[i]! > 2 ** -54) this.heap.push(i);
           work -= 0.25;
         } else {
@@ -398,15 +434,11 @@ class OverflowNarrowing implements OverflowBounds {
   }
 
   // Bounds on the computed 1 − Π(1 − p_i): the factors at the bounds of each p_i (a factor is 1 unless p_i is above
-  // 2^−54), the products widened for the rounding of up to n + 2 products in any order (each within a relative
-  // 2^−53; Higham 2002, §3.1) and for underflow.
+  // 2^−54), the products (the trees' roots, n − 1 products in a tree's order) widened for the rounding of up to
+  // n + 2 products in any order (each within a relative 2^−53; Higham 2002, §3.1) and for underflow.
   private update(): void {
-    let noneHigh = 1;
-    let noneLow = 1;
-    for (let i = 0; i < this.point.n; i++) {
-      noneHigh *= 1 - this.lows[i]!;
-      noneLow *= 1 - this.highs[i]!;
-    }
+    const noneHigh = this.lowFactors[1]!;
+    const noneLow = this.highFactors[1]!;
     const widen = 4 * (this.point.n + 2) * 2 ** -53;
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
