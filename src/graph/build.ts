@@ -128,7 +128,9 @@ function expandOne(
   const name = prefix + layer.name;
   switch (layer.family) {
     case "use": {
-      const block = walk.spec.blocks[layer.block];
+      // own keys only: a spec built in code has plain objects, whose inherited members (toString, __proto__) are no blocks
+      const blocks = walk.spec.blocks;
+      const block = Object.hasOwn(blocks, layer.block) ? blocks[layer.block] : undefined;
       if (block === undefined) {
         const known = Object.keys(walk.spec.blocks);
         walk.issues.push({

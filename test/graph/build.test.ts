@@ -1,6 +1,7 @@
 import { describe, expect, test } from "vitest";
 import { buildGraph, convSize, forwardOrder } from "../../src/graph/index.js";
 import type { Graph, GraphResult } from "../../src/graph/index.js";
+import { check, CheckInputError } from "../../src/index.js";
 import {
   act,
   attention,
@@ -64,6 +65,23 @@ describe("buildGraph expands blocks and repeats", () => {
     const loop = use("again", "loop");
     const found = issues(buildGraph(makeSpec([use("start", "loop")], { blocks: { loop: [dense("d", 8), loop] } })));
     expect(found[0]?.message).toContain("uses itself");
+  });
+
+  // a spec built in code has plain objects for its blocks: the names of Object.prototype's members (ECMAScript
+  // 2022 §20.1.3) are not blocks, and get the unknown block's error (at the use, naming the defined blocks)
+  test.each(["toString", "constructor", "hasOwnProperty", "valueOf", "__proto__"])("a use of %s, a member of every object, is an unknown block", (name) => {
+    const missing = use("x", name);
+    const spec = makeSpec([missing, dense("out", 1)], { blocks: { pair: [dense("inner", 8)] } });
+    const found = issues(buildGraph(spec));
+    expect(found[0]).toEqual({ path: missing.path.join("."), message: `block "${name}" is not defined (blocks: pair)` });
+    // and the same issues as a name no object has
+    const unknown = issues(buildGraph(makeSpec([use("x", "nowhere"), dense("out", 1)], { blocks: { pair: [dense("inner", 8)] } })));
+    expect(found.map((i) => i.message)).toEqual(unknown.map((i) => i.message.replace('"nowhere"', JSON.stringify(name))));
+    // the library's check says the same, as CheckInputError
+    expect(() => check(spec)).toThrow(CheckInputError);
+    expect(() => check(spec)).toThrow(`block "${name}" is not defined (blocks: pair)`);
+    const none = makeSpec([use("x", name), dense("out", 1)]);
+    expect(issues(buildGraph(none))[0]?.message).toBe(`block "${name}" is not defined (the spec has no blocks)`);
   });
 
   test("two layers with one name are refused", () => {
