@@ -121,6 +121,7 @@ class Phase {
     this.ctx = {
       batch: graph.batch,
       phase,
+      ledger: build,
       variance: (w) => this.endVariance.get(w) ?? w.variance * growth2,
       moments: activationMoments,
     };

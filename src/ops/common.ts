@@ -13,6 +13,9 @@ export const SOURCES = {
 /** κ of a linear map's squared norm: Var[g²]/E[g²]² = 2 for Gaussian g (SCIENCE.md §2.6). */
 export const LINEAR_KAPPA = 2;
 
+/** The factors of a rule in a phase without a ledger (OpContext.ledger false): one shared empty list. */
+export const NO_FACTORS: readonly Factor[] = Object.freeze([]);
+
 /** A ledger factor. */
 export function factor(ratio: number, rule: Text, source: string): Factor {
   return { ratio, rule, source };

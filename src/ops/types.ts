@@ -120,6 +120,11 @@ export interface OpContext {
   batch: number;
   /** "start": at initialisation; "end": at the end of the training horizon */
   phase: "start" | "end";
+  /**
+   * whether this phase keeps a ledger: rules word their factors, hazard details and weight-gradient rules only then,
+   * and give NO_FACTORS and "" otherwise (the end pass reads no wording; making it there is only garbage)
+   */
+  ledger: boolean;
   /** variance of one element of a weight in this phase (initial variance × growth² at the end) */
   variance(weight: GraphWeight): number;
   /** memoised Gaussian expectations of an activation at input variance q */
@@ -166,8 +171,8 @@ export interface OpHazard {
 /** Forward result of one layer. */
 export interface ForwardResult<Stash = unknown> {
   output: Signal;
-  /** factors from input to output, for the ledger (one or more) */
-  factors: Factor[];
+  /** factors from input to output, for the ledger (one or more; NO_FACTORS without a ledger) */
+  factors: readonly Factor[];
   /** the output's role: weight layers give pre-activations */
   role: "activation" | "pre-activation";
   inner: InnerTensor[];
@@ -196,7 +201,7 @@ export interface WeightGradientMoment {
 export interface BackwardResult {
   /** gradient at the layer's input; absent for the first layer on token input (no gradient for ids) */
   input?: Gradient;
-  factors: Factor[];
+  factors: readonly Factor[];
   inner: InnerGradient[];
   weightGradients: WeightGradientMoment[];
 }

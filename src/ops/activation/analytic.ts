@@ -9,7 +9,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre } from "../../numeric/quadrature.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
-import { SOURCES, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, SOURCES, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
 
@@ -273,17 +273,17 @@ export function pointwiseForward(
       slope,
     },
     ratio: input.q > 0 ? q / input.q : 0,
-    rule: () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(input.q > 0 ? q / input.q : 0)}${input.gaussian ? "" : " (input not Gaussian: approximate)"}`,
+    rule: ctx.ledger ? forwardRule(name, qNonzero, input.q > 0 ? q / input.q : 0, input.gaussian) : "",
   };
 }
 
 /** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
-export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient): { gradient: Gradient; ratio: number; rule: Text } {
+export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient, ledger: boolean): { gradient: Gradient; ratio: number; rule: Text } {
   let logVar = output.logVar;
   if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
   let derivativeSecond = stash.derivativeSecond;
   let derivativeZeroFraction = stash.derivativeZeroFraction;
-  let rule: Text = () => `${name}: E[φ'²] = ${fmt(stash.derivativeSecond)}`;
+  let rule: Text = ledger ? backwardRule(name, stash.derivativeSecond) : "";
   // E[φ'φ'] for two samples and for two positions, which carry the gradient's shared parts
   let sampleCross = stash.derivativeCross;
   let positionCross = stash.derivativeCrossPosition;
@@ -296,7 +296,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     const a = name === "relu" ? 0 : (stash.slope ?? 0);
     derivativeSecond = 1 - allOff + a * a * allOff;
     derivativeZeroFraction = name === "relu" ? allOff : 0;
-    rule = () => `${name} before a max-pool of ${k}: the arg-max is off with probability ${fmt(allOff)}, E[φ'²] = ${fmt(derivativeSecond)}`;
+    if (ledger) rule = maxPoolRule(name, k, allOff, derivativeSecond);
     // the arg-max gates of two terms are nearly always on, so nearly independent
     sampleCross = derivativeSecond * derivativeSecond;
     positionCross = sampleCross;
@@ -318,27 +318,27 @@ export const activationRule: AnalyticRule<ActivationStash> = {
     const result = pointwiseForward(ctx, spec.activation, spec.slope, input, positionCount(layer.input));
     return {
       output: result.output,
-      factors: [factor(result.ratio, result.rule, SOURCE)],
+      factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCE)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
       stash: result.stash,
     };
   },
-  backward(_ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
     const spec = layer.spec as ActivationLayer;
     if (stash.probabilitySecond !== undefined) {
       // softmax Jacobian diag(p) − p pᵀ: δ_in,j = p_j(δ_j − Σ p_k δ_k), so E[δ_in²] ≈ E[p²]·E[δ²]
       const ratio = stash.probabilitySecond;
       return {
         input: { q: ratio * output.q, zeroFraction: output.zeroFraction, shape: "gaussian", logVar: output.logVar },
-        factors: [factor(ratio, () => `softmax: E[p²] = ${fmt(ratio)}`, SOFTMAX_SOURCE)],
+        factors: ctx.ledger ? [factor(ratio, softmaxBackwardRule(ratio), SOFTMAX_SOURCE)] : NO_FACTORS,
         inner: [],
         weightGradients: [],
       };
     }
-    const result = pointwiseBackward(spec.activation, stash, output);
-    return { input: result.gradient, factors: [factor(result.ratio, result.rule, SOURCES.backward)], inner: [], weightGradients: [] };
+    const result = pointwiseBackward(spec.activation, stash, output, ctx.ledger);
+    return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };
 
@@ -364,7 +364,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
   };
   return {
     output,
-    factors: [factor(input.q > 0 ? second / input.q : 0, () => `softmax over ${n}: E[p²] = ${fmt(second)} at logit variance ${fmt(logitVariance)}`, SOFTMAX_SOURCE)],
+    factors: ctx.ledger ? [factor(input.q > 0 ? second / input.q : 0, softmaxForwardRule(n, second, logitVariance), SOFTMAX_SOURCE)] : NO_FACTORS,
     role: "activation",
     inner: [],
     hazards: [
@@ -374,9 +374,36 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         inputElements: ctx.batch * sampleElements(layer.input),
         terms: n,
         guarded: true,
-        detail: () => `exp of ${n} scores per softmax (row maximum assumed subtracted)`,
+        detail: ctx.ledger ? softmaxDetail(n) : "",
       },
     ],
     stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second },
   };
+}
+
+// The wording makers below hold only the numbers they print: a closure made inside a rule would keep the rule's
+// variables in a context allocated on every call, in the end pass too, where no wording is read.
+
+function forwardRule(name: ActivationName, qNonzero: number, ratio: number, gaussian: boolean): Text {
+  return () => `${name}: E[φ²]/q at q = ${fmt(qNonzero)} is ${fmt(ratio)}${gaussian ? "" : " (input not Gaussian: approximate)"}`;
+}
+
+function backwardRule(name: string, derivativeSecond: number): Text {
+  return () => `${name}: E[φ'²] = ${fmt(derivativeSecond)}`;
+}
+
+function maxPoolRule(name: string, k: number, allOff: number, derivativeSecond: number): Text {
+  return () => `${name} before a max-pool of ${k}: the arg-max is off with probability ${fmt(allOff)}, E[φ'²] = ${fmt(derivativeSecond)}`;
+}
+
+function softmaxBackwardRule(ratio: number): Text {
+  return () => `softmax: E[p²] = ${fmt(ratio)}`;
+}
+
+function softmaxForwardRule(n: number, second: number, logitVariance: number): Text {
+  return () => `softmax over ${n}: E[p²] = ${fmt(second)} at logit variance ${fmt(logitVariance)}`;
+}
+
+function softmaxDetail(n: number): Text {
+  return () => `exp of ${n} scores per softmax (row maximum assumed subtracted)`;
 }

@@ -7,7 +7,7 @@ import { sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import { fmt, weightOf } from "../common.js";
 import { type DenseStash, linearBackward, linearForward } from "../dense/analytic.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 export const conv2dRule: AnalyticRule<DenseStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<DenseStash> {
@@ -19,7 +19,11 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     // connections per input element = (output elements × in-channels × k²) / input elements
     const connections = (sampleElements(layer.output) * w.fanIn) / sampleElements(layer.input);
     const gain = ctx.variance(w) * connections;
-    const rule = (): string => `conv2d: outputs fed per input·var_w = ${fmt(connections)}·${fmt(ctx.variance(w))} = ${fmt(gain)}`;
-    return linearBackward(ctx, layer, stash, output, gain, rule, inChannels);
+    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, ctx.variance(w), gain) : "", inChannels);
   },
 };
+
+/** The backward wording, made only with a ledger and holding only its numbers. */
+function conv2dBackwardRule(connections: number, variance: number, gain: number): Text {
+  return () => `conv2d: outputs fed per input·var_w = ${fmt(connections)}·${fmt(variance)} = ${fmt(gain)}`;
+}

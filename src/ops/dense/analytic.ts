@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { SOURCES, factor, fmt, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { NO_FACTORS, SOURCES, factor, fmt, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -22,7 +22,7 @@ export const denseRule: AnalyticRule<DenseStash> = {
     const w = weightOf(layer, "weight");
     const gain = ctx.variance(w) * w.fanOut;
     const inWidth = w.fanIn;
-    return linearBackward(ctx, layer, stash, output, gain, () => `dense: fan_out·var_w = ${fmt(gain)}`, inWidth);
+    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? denseBackwardRule(gain) : "", inWidth);
   },
 };
 
@@ -40,11 +40,10 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
   if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
   const ratio = input.q > 0 ? q / input.q : 0;
-  const rule = (): string => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
   return {
     output,
-    factors: [factor(ratio, rule, SOURCES.lengthMap)],
+    factors: ctx.ledger ? [factor(ratio, linearForwardRule(kind, gain, biasVariance), SOURCES.lengthMap)] : NO_FACTORS,
     role: "pre-activation",
     inner: [],
     hazards: [
@@ -56,7 +55,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
         outputElements: ctx.batch * perSample,
         terms: w.fanIn,
         guarded: false,
-        detail: () => `${kind} products summed over ${w.fanIn} inputs per output`,
+        detail: ctx.ledger ? accumulationDetail(kind, w.fanIn) : "",
       },
     ],
     stash: { input, output },
@@ -87,7 +86,7 @@ export function linearBackward(
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
       logVar: x.logVar + output.logVar,
-      rule: () => `sum of ${terms} products (batch × positions) of input and gradient, plus the parts samples and positions share`,
+      rule: ctx.ledger ? weightSumRule(terms) : "",
     },
   ];
   if (maybeWeight(layer, "bias") !== undefined) {
@@ -98,7 +97,7 @@ export function linearBackward(
       terms,
       zeroFraction: deltaZero,
       logVar: output.logVar,
-      rule: () => `sum of ${terms} gradients (batch × positions), plus the part they share`,
+      rule: ctx.ledger ? biasSumRule(terms) : "",
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
@@ -106,8 +105,31 @@ export function linearBackward(
   input.positionCorrelation = positionCorrelationOf(output);
   return {
     input,
-    factors: [factor(gain, rule, SOURCES.backward)],
+    factors: ctx.ledger ? [factor(gain, rule, SOURCES.backward)] : NO_FACTORS,
     inner: [],
     weightGradients,
   };
+}
+
+// The wording makers below hold only the numbers they print: a closure made inside a rule would keep the rule's
+// variables in a context allocated on every call, in the end pass too, where no wording is read.
+
+function denseBackwardRule(gain: number): Text {
+  return () => `dense: fan_out·var_w = ${fmt(gain)}`;
+}
+
+function linearForwardRule(kind: string, gain: number, biasVariance: number): Text {
+  return () => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
+}
+
+function accumulationDetail(kind: string, fanIn: number): Text {
+  return () => `${kind} products summed over ${fanIn} inputs per output`;
+}
+
+function weightSumRule(terms: number): Text {
+  return () => `sum of ${terms} products (batch × positions) of input and gradient, plus the parts samples and positions share`;
+}
+
+function biasSumRule(terms: number): Text {
+  return () => `sum of ${terms} gradients (batch × positions), plus the part they share`;
 }
