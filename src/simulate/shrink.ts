@@ -90,8 +90,8 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
     originals.set(copy, layer);
     return copy;
   }
-  const blocks: Record<string, LayerSpec[]> = {};
-  for (const [name, list] of Object.entries(spec.blocks)) blocks[name] = cloneList(list);
+  // fromEntries defines own properties: an assignment to a block named __proto__ would set the prototype instead
+  const blocks: Record<string, LayerSpec[]> = Object.fromEntries(Object.entries(spec.blocks).map(([name, list]) => [name, cloneList(list)]));
   const training = { ...spec.training, batch: div(spec.training.batch, f.batch) };
   if (training.loss.kind === "cross-entropy" && f.classes > 1) {
     training.loss = { ...training.loss, classes: div(training.loss.classes, f.classes) };

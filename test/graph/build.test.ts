@@ -68,7 +68,7 @@ describe("buildGraph expands blocks and repeats", () => {
   });
 
   // a spec built in code has plain objects for its blocks: the names of Object.prototype's members (ECMAScript
-  // 2022 §20.1.3) are not blocks, and get the unknown block's error (at the use, naming the defined blocks)
+  // 2022 §20.1.3, from memory) are not blocks, and get the unknown block's error (at the use, naming the defined blocks)
   test.each(["toString", "constructor", "hasOwnProperty", "valueOf", "__proto__"])("a use of %s, a member of every object, is an unknown block", (name) => {
     const missing = use("x", name);
     const spec = makeSpec([missing, dense("out", 1)], { blocks: { pair: [dense("inner", 8)] } });

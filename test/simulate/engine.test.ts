@@ -201,6 +201,30 @@ layers:
       expect(Math.abs(Math.log2(b.start.meanSquare! / a.start.meanSquare!)), id).toBeLessThan(0.01);
     }
   });
+
+  // a YAML key __proto__ is an own property (YAML 1.2 maps; the spec loader keeps it as one); an assignment
+  // blocks["__proto__"] = … would set the copy's prototype instead (ECMAScript Annex B, Object.prototype.__proto__; from memory)
+  it("keeps a block named __proto__ as a block of the shrunk spec", () => {
+    const s = spec(`name: proto-block
+input: { features: 16 }
+training: { batch: 8, loss: { kind: cross-entropy, classes: 4 } }
+blocks:
+  __proto__:
+    - { type: dense, name: inner, width: 16 }
+    - relu
+layers:
+  - { type: use, block: __proto__ }
+  - { type: dense, name: head, width: 4 }
+`);
+    const { spec: small } = shrinkSpec(s, { width: 4, batch: 2 });
+    expect(Object.keys(small.blocks)).toEqual(["__proto__"]);
+    const built = buildGraph(small);
+    expect(built.ok && built.graph.layers.map((l) => [l.name, l.spec.family === "dense" ? l.spec.width : null])).toEqual([
+      ["use-0.inner", 4],
+      ["use-0.relu-1", null],
+      ["head", 4],
+    ]);
+  });
 });
 
 describe("counts of what storing does", () => {
