@@ -115,7 +115,9 @@ const DRAW_KEY = 9;
 const DRAW_KEYS = new Float64Array(DRAW_SLOTS * DRAW_KEY);
 const DRAW_KEY_WORDS = new Int32Array(DRAW_KEYS.buffer);
 const DRAW_VALUES = new Float64Array(DRAW_SLOTS);
-const DRAW_FILLED = new Uint8Array(DRAW_SLOTS);
+// per slot the key's whole hash with its low bit set (0: empty): most look-ups in a fresh check miss, and a differing
+// tag settles that without reading the key from the large key table (a cache miss of its own)
+const DRAW_TAGS = new Int32Array(DRAW_SLOTS);
 const DRAW_PROBE = new Float64Array(DRAW_KEY);
 const DRAW_PROBE_WORDS = new Int32Array(DRAW_PROBE.buffer);
 
@@ -140,12 +142,16 @@ function shapeCode(shape: MagnitudeProfile["shape"]): number {
   }
 }
 
-// the slot of a key's 32-bit words in a table of `slots` (a power of two): FNV-1a over the words, then mixed
-function hashSlot(words: Int32Array, slots: number): number {
+// a key's 32-bit words hashed: FNV-1a over the words, then mixed
+function hashWords(words: Int32Array): number {
   let hash = 0x811c9dc5;
   for (let i = 0; i < words.length; i++) hash = Math.imul(hash ^ (words[i] as number), 0x01000193);
   hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
-  return (hash ^ (hash >>> 12)) & (slots - 1);
+  return hash ^ (hash >>> 12);
+}
+// the slot of a key's words in a table of `slots` (a power of two)
+function hashSlot(words: Int32Array, slots: number): number {
+  return hashWords(words) & (slots - 1);
 }
 
 // lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table
@@ -164,9 +170,11 @@ function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): nu
   DRAW_PROBE[6] = bound === undefined ? 0 : bound;
   DRAW_PROBE[7] = elementSpread === undefined ? 0 : elementSpread;
   DRAW_PROBE[8] = t;
-  const slot = hashSlot(DRAW_PROBE_WORDS, DRAW_SLOTS);
+  const hash = hashWords(DRAW_PROBE_WORDS);
+  const slot = hash & (DRAW_SLOTS - 1);
+  const tag = hash | 1;
   const at = slot * 2 * DRAW_KEY;
-  if (DRAW_FILLED[slot] === 1) {
+  if (DRAW_TAGS[slot] === tag) {
     let same = true;
     for (let i = 0; i < 2 * DRAW_KEY; i++) {
       if (DRAW_KEY_WORDS[at + i] !== DRAW_PROBE_WORDS[i]) {
@@ -179,7 +187,7 @@ function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): nu
   const value = lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
   DRAW_KEYS.set(DRAW_PROBE, slot * DRAW_KEY);
   DRAW_VALUES[slot] = value;
-  DRAW_FILLED[slot] = 1;
+  DRAW_TAGS[slot] = tag;
   return value;
 }
 
