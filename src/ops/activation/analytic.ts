@@ -184,6 +184,10 @@ export function allBelowZero(c: number, n: number): number {
   const { x, w, wPdf, cdfBelow } = allBelowNodes();
   // in u, below −9 every u_i is surely ≤ 0 and the density integrates to Φ(−9/r)
   let sum = r > 1 ? normalCdf(-ALL_BELOW_LIMIT / r) : 0;
+  // the unary plus (same value) makes the optimised loop keep the sum as a raw double: started from the inlined
+  // normalCdf's result as it is, the loop boxed it in a new heap number at every node, most of what predict allocated
+  // here for a big network
+  sum = +sum;
   if (r > 1) {
     // Φ(−x)^n does not depend on c: taken from the table for n, up to its last nonzero entry (a zero term adds nothing)
     const { power, end } = belowPowers(cdfBelow, n);
