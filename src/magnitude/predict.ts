@@ -323,7 +323,7 @@ class Phase {
 
   /** A residual layer's branch, walked backward from its seed: the branch's input gradient for the rule. */
   private branchBackward(layer: GraphLayer, gradient: Gradient, node: LedgerNode | null): BranchResults {
-    const seed = residualBranchSeed(layer, gradient);
+    const seed = residualBranchSeed(layer, gradient, this.build);
     // (present only with a value: a delete of an absent key is skipped, for speed)
     if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
     if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;

@@ -121,8 +121,9 @@ export interface OpContext {
   /** "start": at initialisation; "end": at the end of the training horizon */
   phase: "start" | "end";
   /**
-   * whether this phase keeps a ledger: rules word their factors, hazard details and weight-gradient rules only then,
-   * and give NO_FACTORS and "" otherwise (the end pass reads no wording; making it there is only garbage)
+   * whether this phase keeps a ledger. Without one (the end pass) nothing reads a rule's wording, so a rule may give
+   * NO_FACTORS and "" for its factors, hazard details and weight-gradient rules instead of making them as garbage;
+   * the rules of every family but attention and the gated feed-forward do
    */
   ledger: boolean;
   /** variance of one element of a weight in this phase (initial variance × growth² at the end) */

@@ -5,13 +5,13 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { DropoutLayer } from "../../spec/types.js";
-import { factor, fmt } from "../common.js";
+import { NO_FACTORS, factor, fmt } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "inverted dropout, kept elements scaled by 1/(1 − rate) (Srivastava et al. 2014; common practice)";
 
 export const dropoutRule: AnalyticRule<null> = {
-  forward(_ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
     const rate = (layer.spec as DropoutLayer).rate;
     const keep = 1 - rate;
     const ratio = keep > 0 ? 1 / keep : 0;
@@ -19,18 +19,18 @@ export const dropoutRule: AnalyticRule<null> = {
     if (input.bound !== undefined) output.bound = input.bound * ratio;
     return {
       output,
-      factors: [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)],
+      factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
       stash: null,
     };
   },
-  backward(_ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
     const rate = (layer.spec as DropoutLayer).rate;
     const keep = 1 - rate;
     const ratio = keep > 0 ? 1 / keep : 0;
     const input: Gradient = { ...output, q: output.q * ratio, zeroFraction: rate + keep * output.zeroFraction };
-    return { input, factors: [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)], inner: [], weightGradients: [] };
+    return { input, factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };

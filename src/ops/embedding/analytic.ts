@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { EmbeddingLayer } from "../../spec/types.js";
-import { factor, fmt, weightOf } from "../common.js";
+import { NO_FACTORS, factor, fmt, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "embedding rows: table variance × multiplier² (definition of the layer)";
@@ -29,7 +29,7 @@ export const embeddingRule: AnalyticRule<null> = {
     };
     return {
       output,
-      factors: [factor(input.q > 0 ? q / input.q : q, () => `embedding: var_table·multiplier² = ${fmt(ctx.variance(table))}·${fmt(spec.multiplier ** 2)}`, SOURCE)],
+      factors: ctx.ledger ? [factor(input.q > 0 ? q / input.q : q, () => `embedding: var_table·multiplier² = ${fmt(ctx.variance(table))}·${fmt(spec.multiplier ** 2)}`, SOURCE)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
@@ -54,7 +54,7 @@ export const embeddingRule: AnalyticRule<null> = {
           terms: lookups,
           zeroFraction: Math.exp(-lambda),
           logVar: output.logVar,
-          rule: () => `${fmt(lambda)} lookups per row on average (${lookups} lookups over ${spec.vocabulary} rows)`,
+          rule: ctx.ledger ? () => `${fmt(lambda)} lookups per row on average (${lookups} lookups over ${spec.vocabulary} rows)` : "",
         },
       ],
     };

@@ -10,7 +10,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
-import { correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { NO_FACTORS, correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -94,13 +94,15 @@ export const normRule: AnalyticRule<NormStash> = {
     const terms = normTerms(layer, ctx.batch);
     return {
       output,
-      factors: [
-        factor(
-          input.q > 0 ? q / input.q : 0,
-          () => `${layer.family}: gain²·var/(var + ε) = ${fmt(gainSquared)}·${fmt(normalisedSecond)}${spec.epsilon > 0 && normalisedSecond < 0.99 ? " (ε dominates a small input)" : ""}`,
-          SOURCE,
-        ),
-      ],
+      factors: ctx.ledger
+        ? [
+            factor(
+              input.q > 0 ? q / input.q : 0,
+              () => `${layer.family}: gain²·var/(var + ε) = ${fmt(gainSquared)}·${fmt(normalisedSecond)}${spec.epsilon > 0 && normalisedSecond < 0.99 ? " (ε dominates a small input)" : ""}`,
+              SOURCE,
+            ),
+          ]
+        : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [
@@ -110,7 +112,7 @@ export const normRule: AnalyticRule<NormStash> = {
           inputElements: ctx.batch * sampleElements(layer.input),
           terms,
           guarded: false,
-          detail: () => `${layer.family} sums the squares of ${terms} elements per statistic`,
+          detail: ctx.ledger ? () => `${layer.family} sums the squares of ${terms} elements per statistic` : "",
         },
       ],
       stash: { input, denominator, normalisedSecond, gainSquared, normalisedCorrelation },
@@ -129,7 +131,7 @@ export const normRule: AnalyticRule<NormStash> = {
         terms,
         zeroFraction: 0,
         logVar: output.logVar,
-        rule: () => `sum of ${terms} products (batch × positions) of normalised input and gradient`,
+        rule: ctx.ledger ? () => `sum of ${terms} products (batch × positions) of normalised input and gradient` : "",
       },
     ];
     if (maybeWeight(layer, "bias") !== undefined) {
@@ -140,7 +142,7 @@ export const normRule: AnalyticRule<NormStash> = {
         terms,
         zeroFraction: 0,
         logVar: output.logVar,
-        rule: () => `sum of ${terms} gradients (batch × positions)`,
+        rule: ctx.ledger ? () => `sum of ${terms} gradients (batch × positions)` : "",
       });
     }
     const input: Gradient = {
@@ -162,7 +164,7 @@ export const normRule: AnalyticRule<NormStash> = {
     }
     return {
       input,
-      factors: [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)],
+      factors: ctx.ledger ? [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
       inner: [],
       weightGradients,
     };

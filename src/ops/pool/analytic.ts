@@ -9,7 +9,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { factor, fmt, positionCorrelationOf, sharedOf } from "../common.js";
+import { NO_FACTORS, factor, fmt, positionCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -55,7 +55,7 @@ export function maxOfNormals(k: number): { m1: number; m2: number; m2Positive: n
 }
 
 export const poolRule: AnalyticRule<null> = {
-  forward(_ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
     const k = windowElements(layer);
     const variance = Math.max(input.q - input.mean * input.mean, 0);
     let q: number;
@@ -97,14 +97,14 @@ export const poolRule: AnalyticRule<null> = {
     };
     return {
       output,
-      factors: [factor(input.q > 0 ? q / input.q : 0, () => `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)],
+      factors: ctx.ledger ? [factor(input.q > 0 ? q / input.q : 0, () => `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
       stash: null,
     };
   },
-  backward(_ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
     const k = windowElements(layer);
     const share = sampleElements(layer.output) / sampleElements(layer.input);
     if (layer.family === "average-pool") {
@@ -116,7 +116,7 @@ export const poolRule: AnalyticRule<null> = {
       const positionCorrelation = pixels > 1 ? (within + (pixels - 1 - within) * positionCorrelationOf(output)) / (pixels - 1) : positionCorrelationOf(output);
       return {
         input: { ...output, q: output.q * ratio, shared: (output.shared ?? 0) * ratio, positionCorrelation, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
-        factors: [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)],
+        factors: ctx.ledger ? [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)] : NO_FACTORS,
         inner: [],
         weightGradients: [],
       };
@@ -129,7 +129,7 @@ export const poolRule: AnalyticRule<null> = {
     const positionCorrelation = pixelsIn > 1 ? (positionCorrelationOf(output) * (pixelsOut - 1)) / (pixelsIn - 1) : positionCorrelationOf(output);
     return {
       input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share * share, positionCorrelation, zeroFraction: 1 - reached * (1 - output.zeroFraction), windowMaximum: k },
-      factors: [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)],
+      factors: ctx.ledger ? [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)] : NO_FACTORS,
       inner: [],
       weightGradients: [],
     };

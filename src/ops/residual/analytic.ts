@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
-import { factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
+import { NO_FACTORS, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -17,17 +17,17 @@ export interface ResidualStash {
   input: Signal;
 }
 
-/** The gradient the branch starts from: α·δ_out, with its ledger factor. */
-export function residualBranchSeed(layer: GraphLayer, output: Gradient): { gradient: Gradient; factor: Factor } {
+/** The gradient the branch starts from: α·δ_out, with its ledger factor (worded only with a ledger). */
+export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: boolean): { gradient: Gradient; factor: Factor } {
   const alpha = (layer.spec as ResidualLayer).multiplier;
   return {
     gradient: { ...output, q: alpha * alpha * output.q },
-    factor: factor(alpha * alpha, () => `residual branch: multiplier² = ${fmt(alpha * alpha)}`, SOURCE),
+    factor: factor(alpha * alpha, ledger ? () => `residual branch: multiplier² = ${fmt(alpha * alpha)}` : "", SOURCE),
   };
 }
 
 export const residualRule: AnalyticRule<ResidualStash> = {
-  forward(_ctx: OpContext, layer: GraphLayer, input: Signal, branch: BranchResults): ForwardResult<ResidualStash> {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal, branch: BranchResults): ForwardResult<ResidualStash> {
     const alpha = (layer.spec as ResidualLayer).multiplier;
     const f = branch.branchOutput;
     if (f === undefined) throw new RangeError(`residual ${layer.name}: the branch output is missing`);
@@ -48,14 +48,14 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const ratio = input.q > 0 ? q / input.q : 0;
     return {
       output,
-      factors: [factor(ratio, () => `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)],
+      factors: ctx.ledger ? [factor(ratio, () => `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
       stash: { input },
     };
   },
-  backward(_ctx: OpContext, layer: GraphLayer, _stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, _stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
     const g = branch.branchGradient;
     if (g === undefined) throw new RangeError(`residual ${layer.name}: the branch gradient is missing`);
     const q = output.q + g.q;
@@ -70,7 +70,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
       input,
-      factors: [factor(ratio, () => `residual: 1 + branch gradient/skip gradient = ${fmt(ratio)}`, SOURCE)],
+      factors: ctx.ledger ? [factor(ratio, () => `residual: 1 + branch gradient/skip gradient = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
       inner: [],
       weightGradients: [],
     };
