@@ -1,13 +1,14 @@
-import { Option, type Command } from "commander";
-import { check, CheckInputError, loadSpecMeasurements } from "../check.js";
+import { readFile } from "node:fs/promises";
+import { evaluateTask } from "../batch/evaluate.js";
+import { check, CheckInputError, loadSpecMeasurements, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import { FORMAT_NAMES, getFormat, type FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
+import { summarizeCheck } from "../report/summary.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
-import type { RegisterCommand } from "./commands.js";
-import { checkVariants, varyOption } from "./batch.js";
+import { formatSpecIssue, formatSpecPath, loadSpec, specJsonSchema } from "../spec/index.js";
+import { variantsFromOptions } from "./shared.js";
 import { renderCheckMarkdown } from "../report/markdown-check.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
@@ -84,54 +85,89 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   }
 }
 
-/** The options `check` and `explain` share. */
-export function addJudgeOptions(command: Command): Command {
-  return command
-    .addOption(
-      new Option("--format <formats>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`).argParser(
-        (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
-      ),
-    )
-    .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
-    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale instead of the plan's"));
+/** The flags of `check` (src/cli/commands/check.ts). */
+export interface CheckFlags extends JudgeFlags {
+  all?: boolean;
+  json?: boolean;
+  md?: boolean;
+  vary?: string[];
 }
 
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards. */
-export const register: RegisterCommand = (program) => {
-  const command = program
-    .command("check")
-    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
-    .description(
-      "Judge a network spec against its precision plan: a verdict per format (fits, at risk, fails) with the reasons, " +
-        "the tensors at risk and the operation hazards. Exit code 1 when a format fails, 2 for input errors. " +
-        "Predictions are estimates; confirm with a short run.",
-    )
-    .option("--all", "list every tensor and operation, not only those at risk")
-    .option("--json", "print the whole result as JSON (fields documented in README.md)")
-    .addOption(new Option("--md", "print Markdown for a CI comment").conflicts("json"))
-    .addOption(varyOption());
-  addJudgeOptions(command).action(async (path: string, flags: JudgeFlags & { all?: boolean; json?: boolean; md?: boolean; vary?: string[] }) => {
-    // --vary (see src/cli/batch.ts): one check per variant, each named by its values
-    const runs = flags.vary ? await checkVariants(path, flags.vary, flags) : [{ variant: null, result: await loadAndCheck(path, flags) }];
-    const texts: string[] = [];
-    for (const { variant, result } of runs) {
-      if (result === undefined) continue;
-      texts.push(
-        flags.md
-          ? renderCheckMarkdown(result, { variant })
-          : flags.json
-            ? renderCheckJson(result)
-            : (variant ? `variant ${variant}\n\n` : "") +
-              renderCheckText(result, {
-                all: flags.all ?? false,
-                style: createStyle(colorEnabled(process.stdout, process.env)),
-                width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
-              }),
-      );
-      if (result.verdict === "fails") raiseExitCode(EXIT.findings);
+export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
+  // --vary (see src/cli/batch.ts): one check per variant, each named by its values
+  const runs = flags.vary ? await checkVariants(path, flags.vary, flags) : [{ variant: null, result: await loadAndCheck(path, flags) }];
+  const texts: string[] = [];
+  for (const { variant, result } of runs) {
+    if (result === undefined) continue;
+    texts.push(
+      flags.md
+        ? renderCheckMarkdown(result, { variant })
+        : flags.json
+          ? renderCheckJson(result)
+          : (variant ? `variant ${variant}\n\n` : "") +
+            renderCheckText(result, {
+              all: flags.all ?? false,
+              style: createStyle(colorEnabled(process.stdout, process.env)),
+              width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+            }),
+    );
+    if (result.verdict === "fails") raiseExitCode(EXIT.findings);
+  }
+  if (flags.json && flags.vary) {
+    process.stdout.write(texts.length === 0 ? "[]\n" : `[\n${texts.map((text, i) => `{ "variant": ${JSON.stringify(runs[i]?.variant)}, "result": ${text.trimEnd()} }`).join(",\n")}\n]\n`);
+  } else process.stdout.write(texts.join("\n"));
+}
+
+/** What `check --vary` checks: the flags `check` shares with `explain`. */
+export interface VariantFlags {
+  format?: string[];
+  plan?: string;
+  lossScale?: string;
+}
+
+/**
+ * `check --vary`: check every variant of one spec. A variant whose spec is invalid (or whose key does
+ * not exist) is reported on stderr with its position in the file and exit code 2; the others are
+ * checked. Resolves to the checked variants in order.
+ */
+export async function checkVariants(
+  path: string,
+  options: readonly string[],
+  flags: VariantFlags,
+  extra: CheckAnswerOptions = {},
+): Promise<{ variant: string; result: CheckAnswer }[]> {
+  const variants = variantsFromOptions(options);
+  const checkOptions: CheckAnswerOptions = { ...extra };
+  const formats = parseFormats(flags.format);
+  if (formats !== undefined) checkOptions.formats = formats;
+  if (flags.lossScale !== undefined) {
+    const value = Number(flags.lossScale);
+    if (!(value > 0) || !Number.isFinite(value)) throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${flags.lossScale}"`);
+    checkOptions.lossScale = value;
+  }
+  if (flags.plan !== undefined) checkOptions.plan = flags.plan;
+  const out: { variant: string; result: CheckAnswer }[] = [];
+  for (const variant of variants) {
+    let result: CheckAnswer | undefined;
+    const outcome = await evaluateTask(
+      { file: path, variant },
+      {
+        readText: (file) => readFile(file, "utf8"),
+        schema: () => specJsonSchema(),
+        judge: (spec) => {
+          result = check(spec, checkOptions);
+          return summarizeCheck(result);
+        },
+      },
+    );
+    if (outcome.status === "error" || result === undefined) {
+      const message = outcome.status === "error" ? outcome.error.message : `${path}: not checked`;
+      process.stderr.write(`${message} [${variant.name}]\n`);
+      raiseExitCode(outcome.status === "error" && outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
+      continue;
     }
-    if (flags.json && flags.vary) {
-      process.stdout.write(texts.length === 0 ? "[]\n" : `[\n${texts.map((text, i) => `{ "variant": ${JSON.stringify(runs[i]?.variant)}, "result": ${text.trimEnd()} }`).join(",\n")}\n]\n`);
-    } else process.stdout.write(texts.join("\n"));
-  });
-};
+    out.push({ variant: variant.name, result });
+  }
+  return out;
+}

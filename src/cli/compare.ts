@@ -1,58 +1,44 @@
-import type { Command } from "commander";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
 import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import type { RegisterCommand } from "./commands.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { buildGraph } from "../graph/index.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
-export const register: RegisterCommand = (program: Command) => {
-  program
-    .command("compare")
-    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
-    .description(
-      "Evaluate several precision plans for one network (all binary32; binary16 or bfloat16 with a master copy; bfloat16 " +
-        "only; 8-bit with scale factors; and the spec's own plans) and rank them: the cheapest plan expected to train " +
-        "safely first. Exit code 1 when no plan trains safely, 2 for input errors. Rankings rest on estimates.",
-    )
-    .option("--only-spec-plans", "compare only the spec's own plans (its precision and plans)")
-    .option("--json", "print the whole comparison as JSON")
-    .action(async (path: string, flags: { onlySpecPlans?: boolean; json?: boolean }) => {
-      const loaded = await loadSpec(path);
-      if (!loaded.ok) {
-        for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-        raiseExitCode(EXIT.inputError);
-        return;
-      }
-      for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
-      const spec = loaded.spec;
-      const built = buildGraph(spec);
-      if (!built.ok) {
-        for (const issue of built.issues) {
-          process.stderr.write(formatSpecIssue({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }) + "\n");
-        }
-        raiseExitCode(EXIT.inputError);
-        return;
-      }
-      const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
-      let comparison;
-      try {
-        comparison = comparePlans(spec, plans ? { plans } : {});
-      } catch (error) {
-        if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
-        throw error;
-      }
-      process.stdout.write(
-        flags.json
-          ? renderCompareJson(comparison)
-          : renderCompareText(comparison, {
-              style: createStyle(colorEnabled(process.stdout, process.env)),
-              width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
-            }),
-      );
-      if (!comparison.outcomes.some((o) => o.trainsSafely)) raiseExitCode(EXIT.findings);
-    });
-};
+export async function runCompare(path: string, flags: { onlySpecPlans?: boolean; json?: boolean }): Promise<void> {
+  const loaded = await loadSpec(path);
+  if (!loaded.ok) {
+    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+    raiseExitCode(EXIT.inputError);
+    return;
+  }
+  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  const spec = loaded.spec;
+  const built = buildGraph(spec);
+  if (!built.ok) {
+    for (const issue of built.issues) {
+      process.stderr.write(formatSpecIssue({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }) + "\n");
+    }
+    raiseExitCode(EXIT.inputError);
+    return;
+  }
+  const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
+  let comparison;
+  try {
+    comparison = comparePlans(spec, plans ? { plans } : {});
+  } catch (error) {
+    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    throw error;
+  }
+  process.stdout.write(
+    flags.json
+      ? renderCompareJson(comparison)
+      : renderCompareText(comparison, {
+          style: createStyle(colorEnabled(process.stdout, process.env)),
+          width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+        }),
+  );
+  if (!comparison.outcomes.some((o) => o.trainsSafely)) raiseExitCode(EXIT.findings);
+}

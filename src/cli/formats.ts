@@ -1,6 +1,5 @@
 import { FORMAT_NAMES, FORMATS, getFormat, type Format } from "../formats/index.js";
 import { renderTable, type TableColumn } from "../report/table.js";
-import type { RegisterCommand } from "./commands.js";
 import { UserError } from "./errors.js";
 
 /** One format's limits as plain JSON: every number exact; Infinity is written as null. */
@@ -154,18 +153,11 @@ export function renderFormatsTable(formats: readonly Format[]): string {
 }
 
 /** `headroom formats`: a table of the number formats and their limits (or JSON). */
-export const register: RegisterCommand = (program) => {
-  program
-    .command("formats")
-    .description("Print the number formats headroom knows and their limits: largest finite, overflow threshold, smallest normal and subnormal, epsilon, range")
-    .argument("[names...]", `formats to show (default all): ${FORMAT_NAMES.join(", ")}`)
-    .option("--json", "print a JSON array of the formats, every number exact (infinity as null)")
-    .action((names: string[], options: { json?: boolean }) => {
-      const formats = names.length === 0 ? FORMAT_NAMES.map((name) => FORMATS[name]) : names.map(lookUp);
-      if (options.json) process.stdout.write(JSON.stringify(formats.map(formatJson), null, 2) + "\n");
-      else process.stdout.write(renderFormatsTable(formats));
-    });
-};
+export async function runFormats(names: string[], options: { json?: boolean }): Promise<void> {
+  const formats = names.length === 0 ? FORMAT_NAMES.map((name) => FORMATS[name]) : names.map(lookUp);
+  if (options.json) process.stdout.write(JSON.stringify(formats.map(formatJson), null, 2) + "\n");
+  else process.stdout.write(renderFormatsTable(formats));
+}
 
 function lookUp(name: string): Format {
   try {

@@ -1,10 +1,7 @@
 import { createRandom } from "../numeric/index.js";
 import { createInterface } from "node:readline";
-import { Option } from "commander";
 import {
   FORMAT_NAMES,
-  OVERFLOW_MODES,
-  ROUNDING_MODES,
   describeRounding,
   getFormat,
   type Format,
@@ -13,7 +10,6 @@ import {
   type RoundingDescription,
   type RoundingMode,
 } from "../formats/index.js";
-import type { RegisterCommand } from "./commands.js";
 import { UserError } from "./errors.js";
 
 const ACCEPTED_VALUES =
@@ -181,75 +177,55 @@ async function* stdinLines(): AsyncGenerator<string> {
 }
 
 /** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
-export const register: RegisterCommand = (program) => {
-  program
-    .command("round")
-    .description(
-      "Round values into formats (directly from binary64, one rounding) and show the result, its bit pattern, " +
-        "its class (zero, subnormal, normal, saturated, infinite, nan) and the rounding error",
-    )
-    .argument("<values...>", "decimal numbers, inf/nan, or 0x + 16 hex digits (binary64 bits); - reads one value per line from stdin")
-    .requiredOption("--to <formats>", `target formats, comma-separated: ${FORMAT_NAMES.join(", ")}`)
-    .addOption(new Option("--rounding <mode>", "how to round").choices(ROUNDING_MODES).default("nearest-even"))
-    .addOption(
-      new Option("--overflow <mode>", "past the largest finite value: clamp to it, or give infinity (NaN for e4m3); default: saturate for e4m3, infinity for the others")
-        .choices(OVERFLOW_MODES),
-    )
-    .option("--flush-subnormals", "send subnormal results to zero, as some hardware does (bfloat16 often)")
-    .option("--seed <n>", "seed of stochastic rounding (a whole number)", "1")
-    .option("--json", "one JSON object per line (per value and format); infinities and NaN as strings")
-    // values such as -inf and -nan look like options to the parser; unknown options arrive as values and are named below
-    .allowUnknownOption()
-    .action(async (values: string[], options: RoundCommandOptions) => {
-      const unknown = values.find((text) => /^--?[a-z]/i.test(text) && !SPECIAL.test(text));
-      if (unknown !== undefined) {
-        throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
+export async function runRound(values: string[], options: RoundCommandOptions): Promise<void> {
+  const unknown = values.find((text) => /^--?[a-z]/i.test(text) && !SPECIAL.test(text));
+  if (unknown !== undefined) {
+    throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
+  }
+  const formats = parseFormats(options.to);
+  const roundOptions: RoundOptions = {
+    mode: options.rounding,
+    ...(options.overflow !== undefined ? { overflow: options.overflow } : {}),
+    flushSubnormals: options.flushSubnormals === true,
+    ...(options.rounding === "stochastic" ? { random: seededUniform(parseSeed(options.seed)) } : {}),
+  };
+  if (values.filter((v) => v === "-").length > 1) throw new UserError(`"-" (read stdin) may be given once`);
+  // check every argument before printing anything
+  for (const text of values) {
+    if (text === "-") continue;
+    const parsed = parseValue(text);
+    if ("error" in parsed) throw new UserError(parsed.error);
+  }
+  const out = new Output();
+  const row = options.json ? jsonRow : textRow;
+  let headerDue = !options.json;
+  const emit = async (input: string, value: number): Promise<void> => {
+    if (headerDue) {
+      headerDue = false;
+      await out.write(textLine([...COLUMNS]));
+    }
+    for (const format of formats) await out.write(row(input, describeRounding(format, value, roundOptions)));
+  };
+  try {
+    for (const text of values) {
+      if (text !== "-") {
+        const parsed = parseValue(text) as { value: number };
+        await emit(text, parsed.value);
+        continue;
       }
-      const formats = parseFormats(options.to);
-      const roundOptions: RoundOptions = {
-        mode: options.rounding,
-        ...(options.overflow !== undefined ? { overflow: options.overflow } : {}),
-        flushSubnormals: options.flushSubnormals === true,
-        ...(options.rounding === "stochastic" ? { random: seededUniform(parseSeed(options.seed)) } : {}),
-      };
-      if (values.filter((v) => v === "-").length > 1) throw new UserError(`"-" (read stdin) may be given once`);
-      // check every argument before printing anything
-      for (const text of values) {
-        if (text === "-") continue;
-        const parsed = parseValue(text);
-        if ("error" in parsed) throw new UserError(parsed.error);
+      let lineNumber = 0;
+      let count = 0;
+      for await (const line of stdinLines()) {
+        lineNumber++;
+        if (line.trim() === "") continue;
+        const parsed = parseValue(line);
+        if ("error" in parsed) throw new UserError(`stdin line ${lineNumber}: ${parsed.error}`);
+        count++;
+        await emit(line.trim(), parsed.value);
       }
-      const out = new Output();
-      const row = options.json ? jsonRow : textRow;
-      let headerDue = !options.json;
-      const emit = async (input: string, value: number): Promise<void> => {
-        if (headerDue) {
-          headerDue = false;
-          await out.write(textLine([...COLUMNS]));
-        }
-        for (const format of formats) await out.write(row(input, describeRounding(format, value, roundOptions)));
-      };
-      try {
-        for (const text of values) {
-          if (text !== "-") {
-            const parsed = parseValue(text) as { value: number };
-            await emit(text, parsed.value);
-            continue;
-          }
-          let lineNumber = 0;
-          let count = 0;
-          for await (const line of stdinLines()) {
-            lineNumber++;
-            if (line.trim() === "") continue;
-            const parsed = parseValue(line);
-            if ("error" in parsed) throw new UserError(`stdin line ${lineNumber}: ${parsed.error}`);
-            count++;
-            await emit(line.trim(), parsed.value);
-          }
-          if (count === 0) throw new UserError(`no values on stdin; expected one value per line (${ACCEPTED_VALUES})`);
-        }
-      } finally {
-        await out.flush();
-      }
-    });
-};
+      if (count === 0) throw new UserError(`no values on stdin; expected one value per line (${ACCEPTED_VALUES})`);
+    }
+  } finally {
+    await out.flush();
+  }
+}

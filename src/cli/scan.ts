@@ -1,10 +1,8 @@
 import { stat } from "node:fs/promises";
-import { Option } from "commander";
-import { OVERFLOW_MODES, type OverflowMode } from "../formats/index.js";
-import { castTarget, DEFAULT_SCAN_TARGETS, expandPaths, scanExitCode, scanFiles, type ScanIssue, type ScanResult } from "../measure/index.js";
+import type { OverflowMode } from "../formats/index.js";
+import { castTarget, expandPaths, scanExitCode, scanFiles, type ScanIssue, type ScanResult } from "../measure/index.js";
 import { renderScanCsv, renderScanJson, renderScanTable } from "../report/scan.js";
 import { colorEnabled, createStyle } from "../report/style.js";
-import type { RegisterCommand } from "./commands.js";
 import { raiseExitCode, UserError } from "./errors.js";
 import { createProgress } from "./progress.js";
 
@@ -23,93 +21,68 @@ interface ScanCommandOptions {
 }
 
 /** `headroom scan FILE...`: measure the tensors of safetensors and .npy files and judge casting them into formats. */
-export const register: RegisterCommand = (program) => {
-  program
-    .command("scan")
-    .description(
-      "Measure every floating-point tensor of safetensors and .npy files (several files or a quoted glob for a sharded " +
-        "checkpoint) and count, element by element, what a cast into each target format flushes, clips or overflows",
-    )
-    .argument("<files...>", "safetensors or .npy files, or glob patterns such as 'shards/*.safetensors'")
-    .option("--to <formats>", "target formats, comma-separated", DEFAULT_SCAN_TARGETS.join(","))
-    .option("--json", "write the result as JSON")
-    .option("--csv", "write one CSV row per tensor and target format")
-    .option("--all", "list every tensor, not only those with findings")
-    .addOption(
-      new Option("--overflow <mode>", "what a value past the largest finite one becomes (default: each format's own: e4m3 saturates)").choices(
-        OVERFLOW_MODES,
-      ),
-    )
-    .option("--flush-subnormals", "count subnormal results as flushed, as hardware that flushes subnormals does")
-    .option("--tolerance <share>", "share of a tensor's nonzero values that may flush or clip before it is called lossy", "0")
-    .addHelpText(
-      "after",
-      "\nExit code: 0 when every tensor is safe in every target, 1 when some cast would lose values or break, " +
-        "2 when a file could not be read (the strictest applies).",
-    )
-    .action(async (patterns: string[], options: ScanCommandOptions) => {
-      if (options.json && options.csv) throw new UserError("--json and --csv exclude each other; pick one");
-      const tolerance = Number(options.tolerance);
-      if (!(tolerance >= 0 && tolerance <= 1)) {
-        throw new UserError(`--tolerance ${JSON.stringify(options.tolerance)}: expected a share between 0 and 1, e.g. 0.001`);
-      }
-      const names = options.to.split(",").map((s) => s.trim()).filter((s) => s !== "");
-      if (names.length === 0) throw new UserError("--to: name at least one format, e.g. --to binary16,bfloat16,e4m3");
-      const targets = names.map((name) => {
-        try {
-          return castTarget(name, { ...(options.overflow ? { overflow: options.overflow } : {}), flushSubnormals: options.flushSubnormals === true });
-        } catch (error) {
-          throw new UserError(`--to: ${error instanceof Error ? error.message : String(error)}`);
+export async function runScan(patterns: string[], options: ScanCommandOptions): Promise<void> {
+  if (options.json && options.csv) throw new UserError("--json and --csv exclude each other; pick one");
+  const tolerance = Number(options.tolerance);
+  if (!(tolerance >= 0 && tolerance <= 1)) {
+    throw new UserError(`--tolerance ${JSON.stringify(options.tolerance)}: expected a share between 0 and 1, e.g. 0.001`);
+  }
+  const names = options.to.split(",").map((s) => s.trim()).filter((s) => s !== "");
+  if (names.length === 0) throw new UserError("--to: name at least one format, e.g. --to binary16,bfloat16,e4m3");
+  const targets = names.map((name) => {
+    try {
+      return castTarget(name, { ...(options.overflow ? { overflow: options.overflow } : {}), flushSubnormals: options.flushSubnormals === true });
+    } catch (error) {
+      throw new UserError(`--to: ${error instanceof Error ? error.message : String(error)}`);
+    }
+  });
+
+  const expanded = await expandPaths(patterns);
+  const sizes = await Promise.all(expanded.paths.map((p) => stat(p).then((s) => (s.isFile() ? s.size : 0), () => 0)));
+  const totalBytes = sizes.reduce((a, b) => a + b, 0);
+  const progress = createProgress({
+    total: Math.ceil(totalBytes / MIB),
+    label: "scanning MiB",
+    enabled: process.stderr.isTTY === true && totalBytes >= PROGRESS_BYTES,
+    // some terminals (and `script`) report 0 columns: draw for 80 then
+    stream: { isTTY: process.stderr.isTTY, columns: process.stderr.columns || 80, write: (text: string) => process.stderr.write(text) },
+  });
+  let reported = 0;
+  let finishedFiles = 0;
+  let result: ScanResult;
+  try {
+    result = await scanFiles(expanded.paths, {
+      targets,
+      tolerance,
+      onProgress: (bytesRead) => {
+        const mib = Math.floor((finishedFiles + bytesRead) / MIB);
+        if (mib > reported) {
+          progress.tick(mib - reported);
+          reported = mib;
         }
-      });
-
-      const expanded = await expandPaths(patterns);
-      const sizes = await Promise.all(expanded.paths.map((p) => stat(p).then((s) => (s.isFile() ? s.size : 0), () => 0)));
-      const totalBytes = sizes.reduce((a, b) => a + b, 0);
-      const progress = createProgress({
-        total: Math.ceil(totalBytes / MIB),
-        label: "scanning MiB",
-        enabled: process.stderr.isTTY === true && totalBytes >= PROGRESS_BYTES,
-        // some terminals (and `script`) report 0 columns: draw for 80 then
-        stream: { isTTY: process.stderr.isTTY, columns: process.stderr.columns || 80, write: (text: string) => process.stderr.write(text) },
-      });
-      let reported = 0;
-      let finishedFiles = 0;
-      let result: ScanResult;
-      try {
-        result = await scanFiles(expanded.paths, {
-          targets,
-          tolerance,
-          onProgress: (bytesRead) => {
-            const mib = Math.floor((finishedFiles + bytesRead) / MIB);
-            if (mib > reported) {
-              progress.tick(mib - reported);
-              reported = mib;
-            }
-          },
-          onFile: (scan) => {
-            finishedFiles += scan.size;
-            const mib = Math.floor(finishedFiles / MIB);
-            if (mib > reported) {
-              progress.tick(mib - reported);
-              reported = mib;
-            }
-          },
-        });
-      } finally {
-        progress.finish();
-      }
-      // patterns that matched nothing count as files with an error
-      for (const issue of expanded.issues) result.files.push({ file: issue.file, kind: null, size: 0, tensors: [], skipped: [], issues: [issue] });
-
-      const all = options.all === true;
-      if (options.json) process.stdout.write(renderScanJson(result, { all }));
-      else if (options.csv) process.stdout.write(renderScanCsv(result, { all }));
-      else process.stdout.write(renderScanTable(result, { all, style: createStyle(colorEnabled(process.stdout, process.env)) }));
-      for (const file of result.files) for (const issue of file.issues) process.stderr.write(`headroom: ${issueLine(issue)}\n`);
-      raiseExitCode(scanExitCode(result));
+      },
+      onFile: (scan) => {
+        finishedFiles += scan.size;
+        const mib = Math.floor(finishedFiles / MIB);
+        if (mib > reported) {
+          progress.tick(mib - reported);
+          reported = mib;
+        }
+      },
     });
-};
+  } finally {
+    progress.finish();
+  }
+  // patterns that matched nothing count as files with an error
+  for (const issue of expanded.issues) result.files.push({ file: issue.file, kind: null, size: 0, tensors: [], skipped: [], issues: [issue] });
+
+  const all = options.all === true;
+  if (options.json) process.stdout.write(renderScanJson(result, { all }));
+  else if (options.csv) process.stdout.write(renderScanCsv(result, { all }));
+  else process.stdout.write(renderScanTable(result, { all, style: createStyle(colorEnabled(process.stdout, process.env)) }));
+  for (const file of result.files) for (const issue of file.issues) process.stderr.write(`headroom: ${issueLine(issue)}\n`);
+  raiseExitCode(scanExitCode(result));
+}
 
 /** One error on one line: file, tensor, byte offset, what is wrong. */
 export function issueLine(issue: ScanIssue): string {

@@ -1,15 +1,6 @@
 import { specJsonSchemaText } from "../spec/index.js";
-import type { RegisterCommand } from "./commands.js";
 
 /** `headroom schema`: print the JSON Schema (draft-07) of network spec files, for editors and CI checks. */
-export const register: RegisterCommand = (program) => {
-  program
-    .command("schema")
-    .description(
-      "Print the JSON Schema (draft-07) of network spec files; point an editor at it for completion and checking " +
-        "(specs/network-spec.schema.json is the same file)",
-    )
-    .action(() => {
-      process.stdout.write(specJsonSchemaText());
-    });
-};
+export async function runSchema(): Promise<void> {
+  process.stdout.write(specJsonSchemaText());
+}

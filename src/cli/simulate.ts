@@ -16,8 +16,7 @@ import {
   type SimulationReport,
   type SimulationResult,
 } from "../simulate/index.js";
-import type { RegisterCommand } from "./commands.js";
-import { writeFileAtomic } from "./report.js";
+import { writeFileAtomic } from "./shared.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 interface SimulateFlags {
@@ -39,65 +38,40 @@ const ESTIMATE_NOTE =
   "A simulation on random data is a second opinion, not a guarantee; predictions are estimates. Confirm with a short training run.";
 
 /** `headroom simulate SPEC`: run the network in float64 with planned storage rounding and compare with the prediction. */
-export const register: RegisterCommand = (program) => {
-  program
-    .command("simulate")
-    .description(
-      "Run the described network forward and backward on random data in float64, rounding every stored tensor to its " +
-        "planned format, and put the measured magnitudes beside the predicted ones",
-    )
-    .argument("<spec>", "network spec (YAML or JSON)")
-    .option("--steps <n>", "optimizer steps to run after the first measurement, to see the first steps' drift", "0")
-    .option("--seed <n>", "seed of the first draw (draw i uses seed + i)", "1")
-    .option("--draws <n>", "independent draws of weights and data; the median is reported", "1")
-    .option("--shrink <factors>", "shrink for speed: one factor for widths, batch and positions (e.g. 4), or width=4,batch=8,positions=2,classes=2,image=2")
-    .option("--plan <name>", "store tensors in this plan of the spec's `plans` instead of its `precision`")
-    .option("--loss-scale <scale>", "static loss scale (default: the plan's, else 1)")
-    .option("--no-rounding", "keep every tensor in binary64 (counts still say what storing would do)")
-    .option("--memory <GiB>", "refuse runs that would need more memory than this", "4")
-    .option("--micro-batches <n>", "micro-batches (accumulation steps × workers) run per step at most", "8")
-    .option("--all", "list every tensor, not only those with findings or disagreements")
-    .option("--json", "write the result as JSON")
-    .option("--html <file>", "also write a page with each tensor's measured band drawn over its predicted band")
-    .addHelpText(
-      "after",
-      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input.",
-    )
-    .action(async (path: string, flags: SimulateFlags) => {
-      const loaded = await loadSpec(path);
-      if (!loaded.ok) {
-        for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-        raiseExitCode(EXIT.inputError);
-        return;
-      }
-      for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
-      const options = {
-        steps: wholeNumber("--steps", flags.steps, 0, 10000),
-        seed: wholeNumber("--seed", flags.seed, 0, Number.MAX_SAFE_INTEGER),
-        draws: wholeNumber("--draws", flags.draws, 1, 1000),
-        round: flags.rounding,
-        memoryLimit: positive("--memory", flags.memory) * 2 ** 30,
-        microBatches: wholeNumber("--micro-batches", flags.microBatches, 1, 1000),
-        predict,
-        ...(flags.shrink !== undefined ? { shrink: parseShrink(flags.shrink) } : {}),
-        ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
-        ...(flags.lossScale !== undefined ? { lossScale: positive("--loss-scale", flags.lossScale) } : {}),
-      };
-      let report: SimulationReport;
-      try {
-        report = simulate(loaded.spec, options);
-      } catch (error) {
-        if (error instanceof SimulationTooLarge) throw new UserError(`${path}: ${error.message}`);
-        if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
-        throw error;
-      }
-      if (flags.html !== undefined) {
-        writeFileAtomic(flags.html, renderSimulationHtml(report));
-      }
-      process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
-      raiseExitCode(simulationExitCode(report.result));
-    });
-};
+export async function runSimulate(path: string, flags: SimulateFlags): Promise<void> {
+  const loaded = await loadSpec(path);
+  if (!loaded.ok) {
+    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+    raiseExitCode(EXIT.inputError);
+    return;
+  }
+  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  const options = {
+    steps: wholeNumber("--steps", flags.steps, 0, 10000),
+    seed: wholeNumber("--seed", flags.seed, 0, Number.MAX_SAFE_INTEGER),
+    draws: wholeNumber("--draws", flags.draws, 1, 1000),
+    round: flags.rounding,
+    memoryLimit: positive("--memory", flags.memory) * 2 ** 30,
+    microBatches: wholeNumber("--micro-batches", flags.microBatches, 1, 1000),
+    predict,
+    ...(flags.shrink !== undefined ? { shrink: parseShrink(flags.shrink) } : {}),
+    ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
+    ...(flags.lossScale !== undefined ? { lossScale: positive("--loss-scale", flags.lossScale) } : {}),
+  };
+  let report: SimulationReport;
+  try {
+    report = simulate(loaded.spec, options);
+  } catch (error) {
+    if (error instanceof SimulationTooLarge) throw new UserError(`${path}: ${error.message}`);
+    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    throw error;
+  }
+  if (flags.html !== undefined) {
+    writeFileAtomic(flags.html, renderSimulationHtml(report));
+  }
+  process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
+  raiseExitCode(simulationExitCode(report.result));
+}
 
 function wholeNumber(flag: string, text: string, min: number, max: number): number {
   const value = Number(text);

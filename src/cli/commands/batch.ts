@@ -1,0 +1,35 @@
+import { Option } from "commander";
+import type { RegisterCommand } from "../commands.js";
+import type { runBatchCommand } from "../batch.js";
+
+/** `headroom batch PATH...`: check many specs in parallel; one row per spec (or variant) (run by src/cli/batch.ts). */
+export const register: RegisterCommand = (program) => {
+  program
+    .command("batch")
+    .argument("<paths...>", "spec files, folders (searched for *.yaml and *.yml), globs (* ? **), or - to read paths from stdin")
+    .description(
+      "Check many network specs at once, in parallel: one row per spec with its verdict per format, the loss-scale pick " +
+        "and window, and the worst tensor. A bad spec is reported in its row and never stops the others. Exit code 0 when " +
+        "all fit, 1 when some are at risk or fail, 2 when some could not be read or validated, 3 when headroom itself " +
+        "failed on one; the strictest applies. Predictions are estimates; confirm with a short run.",
+    )
+    .addOption(varyOption())
+    .addOption(new Option("--jsonl", "print one JSON object per row (JSON Lines)").conflicts(["csv", "md"]))
+    .addOption(new Option("--csv", "print CSV (RFC 4180: CRLF line ends, quoted fields)").conflicts(["jsonl", "md"]))
+    .addOption(new Option("--md", "print a Markdown table for CI comments").conflicts(["jsonl", "csv"]))
+    .addOption(new Option("--workers <n>", "worker threads (default: one per core)"))
+    .addOption(new Option("--plan <name>", "judge this plan of each spec's `plans` instead of its `precision`"))
+    .addOption(new Option("--color", "colour the table even when stdout is not a terminal"))
+    .addOption(new Option("--no-color", "never colour the table"))
+    .action(async (...args: Parameters<typeof runBatchCommand>) => {
+      const { runBatchCommand } = await import("../batch.js");
+      await runBatchCommand(...args);
+    });
+};
+
+/** The `--vary` option, as `check` and `batch` take it (repeatable). */
+export function varyOption(): Option {
+  return new Option("--vary <KEY=V1,V2,...>", "check each value of a key in the spec (e.g. training.batch=8,16); repeat for the cross product").argParser(
+    (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
+  );
+}

@@ -1,0 +1,37 @@
+import { Option, type Command } from "commander";
+import { FORMAT_NAMES } from "../../formats/names.js";
+import type { RegisterCommand } from "../commands.js";
+import type { runCheck } from "../check.js";
+import { varyOption } from "./batch.js";
+
+/** The options `check` and `explain` share. */
+export function addJudgeOptions(command: Command): Command {
+  return command
+    .addOption(
+      new Option("--format <formats>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`).argParser(
+        (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
+      ),
+    )
+    .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
+    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale instead of the plan's"));
+}
+
+/** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards (run by src/cli/check.ts). */
+export const register: RegisterCommand = (program) => {
+  const command = program
+    .command("check")
+    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
+    .description(
+      "Judge a network spec against its precision plan: a verdict per format (fits, at risk, fails) with the reasons, " +
+        "the tensors at risk and the operation hazards. Exit code 1 when a format fails, 2 for input errors. " +
+        "Predictions are estimates; confirm with a short run.",
+    )
+    .option("--all", "list every tensor and operation, not only those at risk")
+    .option("--json", "print the whole result as JSON (fields documented in README.md)")
+    .addOption(new Option("--md", "print Markdown for a CI comment").conflicts("json"))
+    .addOption(varyOption());
+  addJudgeOptions(command).action(async (...args: Parameters<typeof runCheck>) => {
+    const { runCheck } = await import("../check.js");
+    await runCheck(...args);
+  });
+};

@@ -1,0 +1,21 @@
+import type { Command } from "commander";
+import type { RegisterCommand } from "../commands.js";
+import type { runCompare } from "../compare.js";
+
+/** `headroom compare SPEC`: several precision plans side by side, ranked. */
+export const register: RegisterCommand = (program: Command) => {
+  program
+    .command("compare")
+    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
+    .description(
+      "Evaluate several precision plans for one network (all binary32; binary16 or bfloat16 with a master copy; bfloat16 " +
+        "only; 8-bit with scale factors; and the spec's own plans) and rank them: the cheapest plan expected to train " +
+        "safely first. Exit code 1 when no plan trains safely, 2 for input errors. Rankings rest on estimates.",
+    )
+    .option("--only-spec-plans", "compare only the spec's own plans (its precision and plans)")
+    .option("--json", "print the whole comparison as JSON")
+    .action(async (...args: Parameters<typeof runCompare>) => {
+      const { runCompare } = await import("../compare.js");
+      await runCompare(...args);
+    });
+};

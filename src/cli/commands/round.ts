@@ -1,0 +1,32 @@
+import { Option } from "commander";
+import { OVERFLOW_MODES } from "../../formats/model.js";
+import { FORMAT_NAMES } from "../../formats/names.js";
+import { ROUNDING_MODES } from "../../formats/round.js";
+import type { RegisterCommand } from "../commands.js";
+import type { runRound } from "../round.js";
+
+/** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
+export const register: RegisterCommand = (program) => {
+  program
+    .command("round")
+    .description(
+      "Round values into formats (directly from binary64, one rounding) and show the result, its bit pattern, " +
+        "its class (zero, subnormal, normal, saturated, infinite, nan) and the rounding error",
+    )
+    .argument("<values...>", "decimal numbers, inf/nan, or 0x + 16 hex digits (binary64 bits); - reads one value per line from stdin")
+    .requiredOption("--to <formats>", `target formats, comma-separated: ${FORMAT_NAMES.join(", ")}`)
+    .addOption(new Option("--rounding <mode>", "how to round").choices(ROUNDING_MODES).default("nearest-even"))
+    .addOption(
+      new Option("--overflow <mode>", "past the largest finite value: clamp to it, or give infinity (NaN for e4m3); default: saturate for e4m3, infinity for the others")
+        .choices(OVERFLOW_MODES),
+    )
+    .option("--flush-subnormals", "send subnormal results to zero, as some hardware does (bfloat16 often)")
+    .option("--seed <n>", "seed of stochastic rounding (a whole number)", "1")
+    .option("--json", "one JSON object per line (per value and format); infinities and NaN as strings")
+    // values such as -inf and -nan look like options to the parser; unknown options arrive as values and are named below
+    .allowUnknownOption()
+    .action(async (...args: Parameters<typeof runRound>) => {
+      const { runRound } = await import("../round.js");
+      await runRound(...args);
+    });
+};
