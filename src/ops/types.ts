@@ -123,7 +123,7 @@ export interface OpContext {
   /**
    * whether this phase keeps a ledger. Without one (the end pass) nothing reads a rule's wording, so a rule may give
    * NO_FACTORS and "" for its factors, hazard details and weight-gradient rules instead of making them as garbage;
-   * the rules of every family but attention and the gated feed-forward do
+   * the rules of every family but attention do
    */
   ledger: boolean;
   /** variance of one element of a weight in this phase (initial variance × growth² at the end) */
@@ -141,8 +141,8 @@ export interface InnerTensor {
   shape: number[];
   elements: number;
   signal: Signal;
-  /** factors from the layer's input to this tensor */
-  factors: Factor[];
+  /** factors from the layer's input to this tensor (NO_FACTORS without a ledger) */
+  factors: readonly Factor[];
 }
 
 /** A gradient tensor inside a layer (of an inner tensor). */
@@ -151,8 +151,8 @@ export interface InnerGradient {
   shape: number[];
   elements: number;
   gradient: Gradient;
-  /** factors from the gradient at the layer's output to this one */
-  factors: Factor[];
+  /** factors from the gradient at the layer's output to this one (NO_FACTORS without a ledger) */
+  factors: readonly Factor[];
 }
 
 /** An operation hazard a rule reports (turned into a HazardSite by the engine). */

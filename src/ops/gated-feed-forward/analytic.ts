@@ -7,8 +7,8 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { GatedFeedForwardLayer } from "../../spec/types.js";
-import { SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import { NO_FACTORS, SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
 
@@ -73,19 +73,16 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
     output.positionCorrelation = product.positionCorrelation ?? 0;
-    const gateFactor = factor(gateGain, () => `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap);
-    const upFactor = factor(upGain, () => `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
-    const productFactor = factor(m.second, () => `gated product: E[${spec.activation}(g)²] = ${fmt(m.second)} at q_gate = ${fmt(gate.q)}`, SOURCE);
-    const downFactor = factor(downGain, () => `down: fan_in·var_w = ${fmt(downGain)}`, SOURCES.lengthMap);
+    const ledger = ctx.ledger ? forwardLedger(spec, gateGain, upGain, m.second, gate.q, downGain) : undefined;
     const termSignal = (s: Signal, v: number): Signal => ({ ...s, q: s.q * v, mean: 0 });
     return {
       output,
-      factors: [upFactor, productFactor, downFactor],
+      factors: ledger?.output ?? NO_FACTORS,
       role: "activation",
       inner: [
-        { suffix: "gate", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: gate, factors: [gateFactor] },
-        { suffix: "up", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: up, factors: [upFactor] },
-        { suffix: "product", role: "activation", shape: hiddenShape, elements: hiddenElements, signal: product, factors: [upFactor, productFactor] },
+        { suffix: "gate", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: gate, factors: ledger?.gate ?? NO_FACTORS },
+        { suffix: "up", role: "pre-activation", shape: hiddenShape, elements: hiddenElements, signal: up, factors: ledger?.up ?? NO_FACTORS },
+        { suffix: "product", role: "activation", shape: hiddenShape, elements: hiddenElements, signal: product, factors: ledger?.product ?? NO_FACTORS },
       ],
       hazards: [
         {
@@ -96,7 +93,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: hiddenElements,
           terms: D,
           guarded: false,
-          detail: () => `gate and up projections summed over ${D} inputs`,
+          detail: ctx.ledger ? () => `gate and up projections summed over ${D} inputs` : "",
         },
         {
           kind: "accumulation",
@@ -106,7 +103,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: ctx.batch * P * D,
           terms: spec.hidden,
           guarded: false,
-          detail: () => `down projection summed over ${spec.hidden} hidden units`,
+          detail: ctx.ledger ? () => `down projection summed over ${spec.hidden} hidden units` : "",
         },
       ],
       stash: {
@@ -138,21 +135,22 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     upGradient.positionCorrelation = stash.gateSecond > 0 ? Math.min((cross.value * hShare) / stash.gateSecond, 1) : 0;
     gateGradient.positionCorrelation = stash.gateDerivativeSecond > 0 ? Math.min((cross.derivative * cross.correlation * hShare) / stash.gateDerivativeSecond, 1) : 0;
-    const downFactor = factor(downGain, () => `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
+    const gatePart = ctx.variance(wg) * wg.fanOut * gateQ;
+    const upPart = ctx.variance(wu) * wu.fanOut * upQ;
+    const inputQ = gatePart + upPart;
+    const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
+    const ledger = ctx.ledger ? backwardLedger(stash, downGain, ratio) : undefined;
     const inner: InnerGradient[] = [
-      { suffix: "product", shape: hiddenShape, elements: hiddenElements, gradient: productGradient, factors: [downFactor] },
-      { suffix: "up", shape: hiddenShape, elements: hiddenElements, gradient: upGradient, factors: [downFactor, factor(stash.gateSecond, () => `up: E[φ(g)²] = ${fmt(stash.gateSecond)}`, SOURCE)] },
+      { suffix: "product", shape: hiddenShape, elements: hiddenElements, gradient: productGradient, factors: ledger?.product ?? NO_FACTORS },
+      { suffix: "up", shape: hiddenShape, elements: hiddenElements, gradient: upGradient, factors: ledger?.up ?? NO_FACTORS },
       {
         suffix: "gate",
         shape: hiddenShape,
         elements: hiddenElements,
         gradient: gateGradient,
-        factors: [downFactor, factor(stash.gateDerivativeSecond * stash.up.q, () => `gate: E[φ'(g)²]·E[u²] = ${fmt(stash.gateDerivativeSecond)}·${fmt(stash.up.q)}`, SOURCE)],
+        factors: ledger?.gate ?? NO_FACTORS,
       },
     ];
-    const gatePart = ctx.variance(wg) * wg.fanOut * gateQ;
-    const upPart = ctx.variance(wu) * wu.fanOut * upQ;
-    const inputQ = gatePart + upPart;
     const N = ctx.batch * P;
     const wgm = (weight: string, x: Signal, delta: Gradient): WeightGradientMoment => ({
       weight,
@@ -161,14 +159,13 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       terms: N,
       zeroFraction: 0,
       logVar: stash.input.logVar + productGradient.logVar,
-      rule: () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share`,
+      rule: ctx.ledger ? () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share` : "",
     });
-    const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
     const input = linearGradient(inputQ, productGradient.logVar, D);
     input.positionCorrelation = inputQ > 0 ? (gatePart * (gateGradient.positionCorrelation ?? 0) + upPart * (upGradient.positionCorrelation ?? 0)) / inputQ : 0;
     return {
       input,
-      factors: [downFactor, factor(ratio, () => `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
+      factors: ledger?.input ?? NO_FACTORS,
       inner,
       weightGradients: [
         wgm("gate", stash.input, gateGradient),
@@ -178,3 +175,30 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     };
   },
 };
+
+/** The forward ledger factors, made only with a ledger: the gate, up and product tensors' and the output's. */
+function forwardLedger(spec: GatedFeedForwardLayer, gateGain: number, upGain: number, productSecond: number, gateQ: number, downGain: number) {
+  const upFactor = factor(upGain, () => `up: fan_in·var_w = ${fmt(upGain)}`, SOURCES.lengthMap);
+  const productFactor = factor(productSecond, () => `gated product: E[${spec.activation}(g)²] = ${fmt(productSecond)} at q_gate = ${fmt(gateQ)}`, SOURCE);
+  const downFactor = factor(downGain, () => `down: fan_in·var_w = ${fmt(downGain)}`, SOURCES.lengthMap);
+  return {
+    gate: [factor(gateGain, () => `gate: fan_in·var_w = ${fmt(gateGain)}`, SOURCES.lengthMap)],
+    up: [upFactor],
+    product: [upFactor, productFactor],
+    output: [upFactor, productFactor, downFactor],
+  } satisfies Record<string, Factor[]>;
+}
+
+/** The backward ledger factors, made only with a ledger: the product, up and gate gradients' and the input's. */
+function backwardLedger(stash: GatedStash, downGain: number, ratio: number) {
+  const downFactor = factor(downGain, () => `down: fan_out·var_w = ${fmt(downGain)}`, SOURCES.backward);
+  const gateSecond = stash.gateSecond;
+  const gateDerivativeSecond = stash.gateDerivativeSecond;
+  const upQ = stash.up.q;
+  return {
+    product: [downFactor],
+    up: [downFactor, factor(gateSecond, () => `up: E[φ(g)²] = ${fmt(gateSecond)}`, SOURCE)],
+    gate: [downFactor, factor(gateDerivativeSecond * upQ, () => `gate: E[φ'(g)²]·E[u²] = ${fmt(gateDerivativeSecond)}·${fmt(upQ)}`, SOURCE)],
+    input: [downFactor, factor(ratio, () => `gate and up paths back to the input = ${fmt(ratio)}`, SOURCES.backward)],
+  } satisfies Record<string, Factor[]>;
+}
