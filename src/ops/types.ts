@@ -122,8 +122,7 @@ export interface OpContext {
   phase: "start" | "end";
   /**
    * whether this phase keeps a ledger. Without one (the end pass) nothing reads a rule's wording, so a rule may give
-   * NO_FACTORS and "" for its factors, hazard details and weight-gradient rules instead of making them as garbage;
-   * the rules of every family but attention do
+   * NO_FACTORS and "" for its factors, hazard details and weight-gradient rules instead of making them as garbage
    */
   ledger: boolean;
   /** variance of one element of a weight in this phase (initial variance × growth² at the end) */

@@ -15,6 +15,7 @@
 import type { GraphLayer } from "../../graph/types.js";
 import type { AttentionLayer } from "../../spec/types.js";
 import {
+  NO_FACTORS,
   SOURCES,
   factor,
   fmt,
@@ -208,32 +209,47 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const output = linearOutput(outGain * heads.q, heads.logVar, D, outGain * valueShared);
     output.positionCorrelation = heads.positionCorrelation ?? 0;
 
-    const qFactor = (gain: number, name: string): Factor => factor(gain, () => `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
-    const logitFactor = factor(
-      query.signal.q > 0 ? logitVariance / query.signal.q : 0,
-      () => `attention logits: d·E[k²]·c² = ${d}·${fmt(key.signal.q)}·${fmt(scale2)}`,
-      SOURCE,
-    );
-    const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, () => `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
-    const headFactor = factor(
-      averageRatio,
-      () =>
-        `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"} and positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)}`,
-      AVERAGE_SOURCE,
-    );
-    const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
+    // the ledger factors, made only with a ledger (one closure instead of every factor and its wording in both passes)
+    const forwardFactors = () => {
+      const qFactor = (gain: number, name: string): Factor => factor(gain, () => `attention ${name}: fan_in·var_w = ${fmt(gain)}`, SOURCES.lengthMap);
+      const logitFactor = factor(
+        query.signal.q > 0 ? logitVariance / query.signal.q : 0,
+        () => `attention logits: d·E[k²]·c² = ${d}·${fmt(key.signal.q)}·${fmt(scale2)}`,
+        SOURCE,
+      );
+      const probFactor = factor(logitVariance > 0 ? probabilities.q / logitVariance : 0, () => `softmax over ${fmt(rows.keys)} keys: E[p²] = ${fmt(probabilities.q)}`, SOFTMAX_SOURCE);
+      const headFactor = factor(
+        averageRatio,
+        () =>
+          `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"} and positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)}`,
+        AVERAGE_SOURCE,
+      );
+      const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
+      const queryFactor = qFactor(query.gain, "query");
+      const valueFactor = qFactor(value.gain, "value");
+      return {
+        query: [queryFactor],
+        key: [qFactor(key.gain, "key")],
+        value: [valueFactor],
+        logits: [queryFactor, logitFactor],
+        probabilities: [queryFactor, logitFactor, probFactor],
+        heads: [valueFactor, headFactor],
+        output: [valueFactor, headFactor, outFactor],
+      };
+    };
+    const ledger = ctx.ledger ? forwardFactors() : undefined;
 
     const inner_: InnerTensor[] = [
-      { suffix: "query", role: "pre-activation", shape: projection, elements: projectionElements, signal: query.signal, factors: [qFactor(query.gain, "query")] },
-      { suffix: "key", role: "pre-activation", shape: projection, elements: projectionElements, signal: key.signal, factors: [qFactor(key.gain, "key")] },
-      { suffix: "value", role: "pre-activation", shape: projection, elements: projectionElements, signal: value.signal, factors: [qFactor(value.gain, "value")] },
+      { suffix: "query", role: "pre-activation", shape: projection, elements: projectionElements, signal: query.signal, factors: ledger?.query ?? NO_FACTORS },
+      { suffix: "key", role: "pre-activation", shape: projection, elements: projectionElements, signal: key.signal, factors: ledger?.key ?? NO_FACTORS },
+      { suffix: "value", role: "pre-activation", shape: projection, elements: projectionElements, signal: value.signal, factors: ledger?.value ?? NO_FACTORS },
       {
         suffix: "logits",
         role: "pre-activation",
         shape: matrix,
         elements: spec.causal ? (ctx.batch * spec.heads * P * (P + 1)) / 2 : matrixElements,
         signal: logits,
-        factors: [qFactor(query.gain, "query"), logitFactor],
+        factors: ledger?.logits ?? NO_FACTORS,
       },
       {
         suffix: "probabilities",
@@ -241,9 +257,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         shape: matrix,
         elements: matrixElements,
         signal: probabilities,
-        factors: [qFactor(query.gain, "query"), logitFactor, probFactor],
+        factors: ledger?.probabilities ?? NO_FACTORS,
       },
-      { suffix: "heads", role: "activation", shape: projection, elements: projectionElements, signal: heads, factors: [qFactor(value.gain, "value"), headFactor] },
+      { suffix: "heads", role: "activation", shape: projection, elements: projectionElements, signal: heads, factors: ledger?.heads ?? NO_FACTORS },
     ];
 
     const accumulated: Signal = { ...logits, q: rawVariance * (spec.scaling === "query" ? scale2 : 1) };
@@ -256,12 +272,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: matrixElements,
         terms: d,
         guarded: false,
-        detail: () =>
-          spec.scaling === "logits"
-            ? `query·key summed over head width ${d} before the 1/√${d} scaling`
-            : spec.scaling === "query"
-              ? `query·key summed over head width ${d}, query pre-scaled by 1/√${d}`
-              : `query·key summed over head width ${d}, never scaled`,
+        detail: ctx.ledger
+          ? () =>
+              spec.scaling === "logits"
+                ? `query·key summed over head width ${d} before the 1/√${d} scaling`
+                : spec.scaling === "query"
+                  ? `query·key summed over head width ${d}, query pre-scaled by 1/√${d}`
+                  : `query·key summed over head width ${d}, never scaled`
+          : "",
       },
       {
         kind: "softmax-exp",
@@ -269,7 +287,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         inputElements: matrixElements,
         terms: P,
         guarded: spec.subtractMax,
-        detail: () => `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}`,
+        detail: ctx.ledger ? () => `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}` : "",
       },
       {
         kind: "accumulation",
@@ -279,7 +297,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: projectionElements,
         terms: Math.round(rows.keys),
         guarded: false,
-        detail: () => `probability-weighted values summed over ${fmt(rows.keys)} keys`,
+        detail: ctx.ledger ? () => `probability-weighted values summed over ${fmt(rows.keys)} keys` : "",
       },
       {
         kind: "accumulation",
@@ -289,12 +307,12 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: ctx.batch * P * D,
         terms: inner,
         guarded: false,
-        detail: () => `output projection summed over ${inner} inputs`,
+        detail: ctx.ledger ? () => `output projection summed over ${inner} inputs` : "",
       },
     ];
     return {
       output,
-      factors: [qFactor(value.gain, "value"), headFactor, outFactor],
+      factors: ledger?.output ?? NO_FACTORS,
       role: "activation",
       inner: inner_,
       hazards,
@@ -327,51 +345,65 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
     const valueGradient: Gradient = { ...g(valueQ), positionCorrelation: valuePositionCorrelation };
-    const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
-    const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
-    const logitFactor = factor(
-      stash.rows.elementSecond * unmaskedShare * valueApart,
-      () => `softmax Jacobian: E[p²]·(1 − ρ_v) = ${fmt(stash.rows.elementSecond)}·${fmt(valueApart)}`,
-      valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
-    );
+    const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
+    const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
+    const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
+    // the ledger factors, made only with a ledger (one closure instead of every factor and its wording in both passes)
+    const backwardFactors = () => {
+      const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
+      const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
+      const logitFactor = factor(
+        stash.rows.elementSecond * unmaskedShare * valueApart,
+        () => `softmax Jacobian: E[p²]·(1 − ρ_v) = ${fmt(stash.rows.elementSecond)}·${fmt(valueApart)}`,
+        valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
+      );
+      const queryFactor = factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE);
+      const keyFactor = factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE);
+      const valueFactor = factor(headsQ > 0 ? valueQ / headsQ : 0, () => `attention value: Σ_i p_ij² + ρ·(1 − Σ_i p_ij²) = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}`, AVERAGE_SOURCE);
+      const inputFactor = factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward);
+      return {
+        heads: [headFactor],
+        probabilities: [headFactor, probFactor],
+        logits: [headFactor, probFactor, logitFactor],
+        query: [headFactor, queryFactor],
+        key: [headFactor, keyFactor],
+        value: [headFactor, valueFactor],
+        input: [headFactor, inputFactor],
+      };
+    };
+    const ledger = ctx.ledger ? backwardFactors() : undefined;
     const innerGradients: InnerGradient[] = [
-      { suffix: "heads", shape: projection, elements: projectionElements, gradient: heads, factors: [headFactor] },
+      { suffix: "heads", shape: projection, elements: projectionElements, gradient: heads, factors: ledger?.heads ?? NO_FACTORS },
       {
         suffix: "probabilities",
         shape: matrix,
         elements: matrixElements,
         gradient: g(probQ),
-        factors: [headFactor, probFactor],
+        factors: ledger?.probabilities ?? NO_FACTORS,
       },
-      { suffix: "logits", shape: matrix, elements: matrixElements, gradient: g(logitQ, zeroMasked), factors: [headFactor, probFactor, logitFactor] },
+      { suffix: "logits", shape: matrix, elements: matrixElements, gradient: g(logitQ, zeroMasked), factors: ledger?.logits ?? NO_FACTORS },
       {
         suffix: "query",
         shape: projection,
         elements: projectionElements,
         gradient: g(queryQ),
-        factors: [headFactor, factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: ledger?.query ?? NO_FACTORS,
       },
       {
         suffix: "key",
         shape: projection,
         elements: projectionElements,
         gradient: g(keyQ),
-        factors: [headFactor, factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE)],
+        factors: ledger?.key ?? NO_FACTORS,
       },
       {
         suffix: "value",
         shape: projection,
         elements: projectionElements,
         gradient: valueGradient,
-        factors: [
-          headFactor,
-          factor(headsQ > 0 ? valueQ / headsQ : 0, () => `attention value: Σ_i p_ij² + ρ·(1 − Σ_i p_ij²) = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}`, AVERAGE_SOURCE),
-        ],
+        factors: ledger?.value ?? NO_FACTORS,
       },
     ];
-    const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
-    const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
-    const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
     const N = ctx.batch * P;
     // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
     // key j's own value deviation, independent between keys
@@ -384,17 +416,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       terms: N,
       zeroFraction: 0,
       logVar,
-      rule: () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share`,
+      rule: ctx.ledger ? () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share` : "",
     });
     const D = layer.input.layout === "features" ? layer.input.features : 1;
     const input = linearGradient(inputQ, heads.logVar, D);
     input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
     return {
       input,
-      factors: [
-        headFactor,
-        factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward),
-      ],
+      factors: ledger?.input ?? NO_FACTORS,
       inner: innerGradients,
       weightGradients: [
         wg("query", stash.input, queryGradient, stash.input.logVar + heads.logVar),
