@@ -74,7 +74,8 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
     .map((h) => h.kind)
     .filter((kind): kind is OptimizerStateHazard => kind === "optimizer-constant" || kind === "optimizer-second-moment");
-  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards);
+  // the thresholds the judge used, the caller's overrides included: second moments get their hazard's severity
+  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards, judged.thresholds);
   // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
   const scaleVerdict: Verdict =
     answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";

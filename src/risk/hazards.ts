@@ -9,7 +9,7 @@ import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { flushedSecondMoments, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
+import { flushedSecondMoments, flushedSecondMomentsVerdict, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -474,8 +474,9 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
 }
 
 function secondMoment(gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
-  const t = context.thresholds;
   const { bound, share } = flushedSecondMoments(gradient, context.optimizerStates.flushBound, context.beta2);
-  putGraded(list, context.optimizerStates, "optimizerStates", "flushed-share", "second-moment-flushed", share, bound,
-    t.flushedAtRisk, t.flushedFails, false, SECOND_MOMENT, 0, false);
+  // one rule with the optimizer check (src/risk/second-moments.ts), so both give it one severity
+  const { verdict, threshold } = flushedSecondMomentsVerdict(share, context.thresholds);
+  fill(nextDraft(list), context.optimizerStates.format, "optimizerStates", "flushed-share", "second-moment-flushed", share, bound,
+    verdict, threshold, SECOND_MOMENT, 0, false);
 }

@@ -1,11 +1,12 @@
 /**
  * Adam's second moments and its epsilon: the count of zero second moments per step, the one rule that grades a
- * vanishing epsilon, and the gradient it is judged at. Shared by the operation hazards (./hazards.ts) and the
- * optimizer check (src/scale/optimizer.ts) so that one problem gets one severity. Not part of the public API.
+ * vanishing epsilon, the one rule that grades flushed second moments, and the gradients both are judged at.
+ * Shared by the operation hazards (./hazards.ts) and the optimizer check (src/scale/optimizer.ts) so that one
+ * problem gets one severity. Not part of the public API.
  */
 import type { HazardSite, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { fractionBelow, nonzeroElements } from "./profile.js";
-import type { Verdict } from "./types.js";
+import type { RiskThresholds, Verdict } from "./types.js";
 
 // The stored second moment (1 − β2)·g² flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with
 // β2 = 0.999 (DESIGN.md §5 item 5). The gradient is without the loss scale (removed before the optimizer).
@@ -29,22 +30,44 @@ export function vanishedEpsilonVerdict(zerosPerStep: number): Verdict {
 }
 
 /**
- * The gradients Adam's epsilon and second moment are judged at: the prediction's own optimizer-constant site
- * when it has one (its input, and its input at the end when it has one), else the weight gradient of smallest rms
- * (start or end), whose second moments flush most.
+ * Flushed second moments, graded by the shares of the thresholds table (README.md; the caller's overrides
+ * included): above `flushedFails` it fails, above `flushedAtRisk` it is at risk (NaN fits). Gives the threshold
+ * crossed (0 when it fits).
  */
-export function epsilonSiteGradients(prediction: Prediction): MagnitudeProfile[] {
+export function flushedSecondMomentsVerdict(
+  share: number,
+  thresholds: Pick<RiskThresholds, "flushedAtRisk" | "flushedFails">,
+): { verdict: Verdict; threshold: number } {
+  if (share > thresholds.flushedFails) return { verdict: "fails", threshold: thresholds.flushedFails };
+  if (share > thresholds.flushedAtRisk) return { verdict: "at-risk", threshold: thresholds.flushedAtRisk };
+  return { verdict: "fits", threshold: 0 };
+}
+
+/**
+ * The gradients Adam's epsilon (`optimizer-constant`) or second moment (`optimizer-second-moment`) is judged at,
+ * and the layer named: the prediction's own site of that kind when it has one (its input, and its input at the
+ * end when it has one), else the weight gradient of smallest rms (start or end), whose second moments flush most
+ * — the site src/risk/judge.ts adds for the training setup.
+ */
+export function stateSiteGradients(
+  prediction: Prediction,
+  kind: "optimizer-constant" | "optimizer-second-moment",
+): { layer: string; gradients: MagnitudeProfile[] } {
   const hazards = prediction.hazards;
   for (let i = 0; i < hazards.length; i++) {
     const site = hazards[i] as HazardSite;
-    if (site.kind === "optimizer-constant") return site.end === undefined ? [site.input] : [site.input, site.end.input];
+    if (site.kind === kind) return { layer: site.layer, gradients: site.end === undefined ? [site.input] : [site.input, site.end.input] };
   }
   const weightGradients: TensorPrediction[] = [];
   for (let i = 0; i < prediction.tensors.length; i++) {
     const tensor = prediction.tensors[i] as TensorPrediction;
     if (tensor.role === "weight-gradient") weightGradients.push(tensor);
   }
-  return [byRms(weightGradients, "smallest")?.profile ?? { elements: 1, zeroFraction: 0, shape: "constant", rms: 0, log2Spread: 0 }];
+  const pick = byRms(weightGradients, "smallest");
+  return {
+    layer: pick?.tensor.layer ?? "optimizer",
+    gradients: [pick?.profile ?? { elements: 1, zeroFraction: 0, shape: "constant", rms: 0, log2Spread: 0 }],
+  };
 }
 
 /** The tensor (and its start or end profile) of largest or smallest positive rms. */

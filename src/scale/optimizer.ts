@@ -5,8 +5,14 @@
 import type { Format } from "../formats/index.js";
 import { getFormat, roundTo } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile } from "../risk/index.js";
-import { epsilonSiteGradients, vanishedEpsilonVerdict, zeroSecondMoments } from "../risk/second-moments.js";
+import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, type RiskThresholds } from "../risk/index.js";
+import {
+  flushedSecondMoments,
+  flushedSecondMomentsVerdict,
+  stateSiteGradients,
+  vanishedEpsilonVerdict,
+  zeroSecondMoments,
+} from "../risk/second-moments.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -82,9 +88,10 @@ export interface OptimizerCheck {
 /**
  * Thresholds (documented in README.md): a weight tensor whose updates are lost for more than 1% of its
  * elements at some point of the schedule is at risk; more than half lost at the peak learning rate fails
- * (training barely moves those weights). A state format that flushes more than 1% of second moments is at risk.
+ * (training barely moves those weights). Flushed second moments are graded by the risk thresholds' flushed shares
+ * (`flushedAtRisk`, `flushedFails`), as their hazard is.
  */
-export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 0.01, lostFails: 0.5, momentFlushAtRisk: 0.01 } as const;
+export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 0.01, lostFails: 0.5 } as const;
 
 /**
  * Steps of stochastic rounding until the rounding noise of the summed update falls below 10% of it.
@@ -200,6 +207,8 @@ function updateLoss(
  * given, is set against the steps stochastic rounding needs to average out, so a remedy that would not within
  * the run says so. `hazards`: the state hazards whose findings the caller reports in the plan's state format (as
  * `check` does); a state finding of those kinds is then left out of `reasons` and listed in `reportedAsHazards`.
+ * `thresholds`: the flushed shares that grade second moments, the caller's overrides included (as the judge takes
+ * them), so the optimizer and the `optimizer-second-moment` hazard give one severity.
  * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
  */
 export function checkOptimizer(
@@ -208,6 +217,7 @@ export function checkOptimizer(
   prediction: Prediction,
   plannedSteps?: number,
   hazards: readonly OptimizerStateHazard[] = [],
+  thresholds: Pick<RiskThresholds, "flushedAtRisk" | "flushedFails"> = DEFAULT_THRESHOLDS,
 ): OptimizerCheck {
   const weightFormat = getFormat(plan.weights);
   const stateFormat = getFormat(plan.optimizerStates);
@@ -229,11 +239,9 @@ export function checkOptimizer(
     optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(optimizer.learningRate.end * optimizer.weightDecay, updateFormat) : null;
   const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost };
   const tensors: WeightOptimizerCheck[] = [];
-  const gradientEnd = new Map<string, MagnitudeProfile>();
   const pairs = weightPairs(prediction);
   for (let p = 0; p < pairs.length; p++) {
     const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
-    gradientEnd.set(weight.id, gradient.end);
     tensors.push(weightCheck(context, weight, gradient));
   }
 
@@ -248,13 +256,44 @@ export function checkOptimizer(
   let zerosPerStep = 0;
   if (epsilon?.vanishes) {
     const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
-    const gradients = epsilonSiteGradients(prediction);
+    const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
     for (let i = 0; i < gradients.length; i++) {
       zerosPerStep = Math.max(zerosPerStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, flushBound, optimizer.betas[1]));
     }
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zerosPerStep, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat, gradientEnd }, plannedSteps, hazards);
+  // flushed second moments where their hazard judges them: the same gradients, flush bound, share and thresholds as
+  // the optimizer-second-moment hazard (src/risk/second-moments.ts), so both give them one severity
+  let secondMoments: SecondMoments | null = null;
+  if (adamLike) {
+    const site = stateSiteGradients(prediction, "optimizer-second-moment");
+    const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
+    const binary32Bound = limitsFor(plan, "binary32").flushBound;
+    let share = 0;
+    let inBinary32 = 0;
+    for (let i = 0; i < site.gradients.length; i++) {
+      const gradient = site.gradients[i] as MagnitudeProfile;
+      share = Math.max(share, flushedSecondMoments(gradient, flushBound, optimizer.betas[1]).share);
+      inBinary32 = Math.max(inBinary32, flushedSecondMoments(gradient, binary32Bound, optimizer.betas[1]).share);
+    }
+    secondMoments = {
+      layer: site.layer,
+      share,
+      inBinary32: binary32Bound < flushBound ? inBinary32 : null,
+      verdict: flushedSecondMomentsVerdict(share, thresholds).verdict,
+    };
+  }
+
+  return summarise(optimizer, plan, tensors, epsilon, zerosPerStep, secondMoments, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
+}
+
+// Flushed second moments at their hazard's gradients: the share in the state format, the share binary32 states
+// would flush (null when binary32 keeps no smaller values), and the verdict.
+interface SecondMoments {
+  layer: string;
+  share: number;
+  inBinary32: number | null;
+  verdict: OptimizerVerdict;
 }
 
 // What every weight's check reads, fixed for one assessment.
@@ -311,20 +350,16 @@ function decoupledDecayLost(ratio: number, format: Pick<Format, "precision">): n
   return Math.log2(bound);
 }
 
-// The worst lost share under the plan and where, the worst at the peak learning rate, the tensor whose second
-// moments flush most at the first step and the largest decay loss: the one pass over the tensors, in a function of
-// its own (summarise then runs too little per check to be worth a large optimised compile)
+// The worst lost share under the plan and where, the worst at the peak learning rate and the largest decay loss:
+// the one pass over the tensors, in a function of its own (summarise then runs too little per check to be worth a
+// large optimised compile)
 function worstFindings(tensors: readonly WeightOptimizerCheck[]): {
   worst: OptimizerCheck["worst"];
   worstPeak: number;
-  worstSecondMoment: number;
-  worstSecondMomentTensor: string;
   decay: number;
 } {
   let worst: OptimizerCheck["worst"] = null;
   let worstPeak = 0;
-  let worstSecondMoment = 0;
-  let worstSecondMomentTensor = "";
   let decay = 0;
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as WeightOptimizerCheck;
@@ -333,13 +368,9 @@ function worstFindings(tensors: readonly WeightOptimizerCheck[]): {
       if (!worst || u.planned > worst.lostShare) worst = { weight: t.weight, at: u.at, lostShare: u.planned };
       if (u.at === "peak") worstPeak = Math.max(worstPeak, u.planned);
     }
-    if (t.secondMomentFlushed.firstStep > worstSecondMoment) {
-      worstSecondMoment = t.secondMomentFlushed.firstStep;
-      worstSecondMomentTensor = t.weight;
-    }
     decay = Math.max(decay, t.decayLost ?? 0);
   }
-  return { worst, worstPeak, worstSecondMoment, worstSecondMomentTensor, decay };
+  return { worst, worstPeak, decay };
 }
 
 function summarise(
@@ -348,19 +379,18 @@ function summarise(
   tensors: WeightOptimizerCheck[],
   epsilon: OptimizerCheck["epsilon"],
   zerosPerStep: number,
+  secondMoments: SecondMoments | null,
   formats: {
     weightFormat: Format;
     stateFormat: Format;
     updateFormat: Format;
     binary32: Format;
     compensatedFormat: Pick<Format, "precision" | "emin">;
-    /** each weight's gradient at the end of the horizon, by weight id */
-    gradientEnd: Map<string, MagnitudeProfile>;
   },
   plannedSteps: number | undefined,
   hazards: readonly OptimizerStateHazard[],
 ): OptimizerCheck {
-  const { worst, worstPeak, worstSecondMoment, worstSecondMomentTensor, decay } = worstFindings(tensors);
+  const { worst, worstPeak, decay } = worstFindings(tensors);
   const reasons: string[] = [];
   const remedies: string[] = [];
   const reportedAsHazards: OptimizerStateHazard[] = [];
@@ -464,25 +494,20 @@ function summarise(
   }
   if (lostUpdate !== null || decayFinding) remedies.push(...updateRemedies(lostUpdate, worst?.weight ?? "", decayFinding ? { ratio: decayRatio, lost: decay } : null));
 
-  if (worstSecondMoment > OPTIMIZER_THRESHOLDS.momentFlushAtRisk) {
-    raise("at-risk");
+  if (secondMoments !== null && secondMoments.verdict !== "fits") {
+    const { layer, share, inBinary32 } = secondMoments;
+    raise(secondMoments.verdict);
     tell(
       "optimizer-second-moment",
-      `${pct(worstSecondMoment)} of the second moments of ${worstSecondMomentTensor} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest subnormal).`,
+      `${pct(share)} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).`,
     );
-    // binary32 states only where they flush less: the same first-step bound with binary32's smallest value
-    const gradient = formats.gradientEnd.get(worstSecondMomentTensor);
-    const wider = plan.flushSubnormals ? binary32.minNormal < stateFormat.minNormal : binary32.minSubnormal < stateFormat.minSubnormal;
-    if (gradient !== undefined && wider) {
-      const bound = plan.flushSubnormals ? binary32.minNormal : binary32.minSubnormal / 2;
-      const flushed = fractionBelow(gradient, Math.sqrt(bound / (1 - optimizer.betas[1])));
-      if (flushed < worstSecondMoment) {
-        // Adam keeps two states per parameter (first and second moments; Kingma & Ba 2015)
-        const extra = 2 * (binary32.bytes - stateFormat.bytes);
-        remedies.push(
-          `hold the optimizer states in binary32 instead of ${stateFormat.name}: ${pct(flushed)} of the second moments flush at the first step instead of ${pct(worstSecondMoment)} (+${extra} bytes per parameter for the two states)`,
-        );
-      }
+    // binary32 states only where they flush less, on the same gradients
+    if (inBinary32 !== null && inBinary32 < share) {
+      // Adam keeps two states per parameter (first and second moments; Kingma & Ba 2015)
+      const extra = 2 * (binary32.bytes - stateFormat.bytes);
+      remedies.push(
+        `hold the optimizer states in binary32 instead of ${stateFormat.name}: ${pct(inBinary32)} of the second moments flush at the first step instead of ${pct(share)} (+${extra} bytes per parameter for the two states)`,
+      );
     }
   }
   if (epsilon?.vanishes) {

@@ -71,6 +71,35 @@ describe("purpose-built hazards, end to end", () => {
     expect(result.verdict).toBe(expected);
   });
 
+  // README.md's thresholds table: a share of nonzero elements flushed to zero (Adam's second moment included) is at
+  // risk above 1% and fails above 10%, or above the thresholds the caller gives; the optimizer check, the hazard it
+  // points to and the folded verdict must say the same
+  it.each([
+    // input scale, thresholds given, expected verdict, the flushed share's bounds (the spec sits clear of each edge)
+    ["0.25", {}, "fails", 0.15, 0.5],
+    ["1.0", {}, "at-risk", 0.02, 0.08],
+    ["8.0", {}, "fits", 0, 0.008],
+    ["1.0", { flushedAtRisk: 0.001, flushedFails: 0.03 }, "fails", 0.04, 0.08],
+    ["1.0", { flushedAtRisk: 0.1, flushedFails: 0.5 }, "fits", 0.04, 0.08],
+    ["0.25", { flushedAtRisk: 0.1, flushedFails: 0.5 }, "at-risk", 0.15, 0.5],
+  ] as const)(
+    "flushed second moments in binary16 states, input scale %s, thresholds %o: %s in the hazard, the optimizer check and the verdict",
+    (scale, thresholds, expected, low, high) => {
+      const result = check(load(`${HAZARDS}/adam-second-moment-boundary.yaml`, (t) => t.replace("scale: 1.0", `scale: ${scale}`)), { thresholds });
+      const moment = result.hazards.find((h) => h.kind === "optimizer-second-moment");
+      const share = moment?.evaluations.find((e) => e.format === "binary16")?.value ?? Number.NaN;
+      expect(share).toBeGreaterThan(low);
+      expect(share).toBeLessThan(high);
+      expect(moment?.findings.map((f) => [f.format, f.severity])).toEqual(expected === "fits" ? [] : [["binary16", expected]]);
+      // epsilon 1e-4 is a binary16 normal number (IEEE 754-2019: smallest normal 2^-14 ≈ 6.1e-5), so it is kept
+      expect(result.optimizer.epsilon?.vanishes).toBe(false);
+      expect(result.optimizer.reportedAsHazards).toEqual(expected === "fits" ? [] : ["optimizer-second-moment"]);
+      expect(result.optimizer.verdict).toBe(expected);
+      expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
+      expect(result.verdict).toBe(expected);
+    },
+  );
+
   it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {
     const result = check(load(`${HAZARDS}/loss-sum-reduction.yaml`));
     expect(kinds(result, "binary16")).toContain("loss-value-overflow");

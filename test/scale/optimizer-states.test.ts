@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
+import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { checkOptimizer } from "../../src/scale/optimizer.js";
 // @ts-expect-error checkOptimizer takes no options object: the per-tensor list is never cut (typecheck: npx tsc -p tsconfig.json)
 import type { OptimizerCheckOptions } from "../../src/scale/optimizer.js";
@@ -128,3 +129,66 @@ describe("checkOptimizer: the per-tensor list", () => {
   });
 });
 
+
+describe("checkOptimizer: flushed second moments graded as their hazard grades them", () => {
+  // README.md's thresholds table: a share of nonzero elements flushed to zero (Adam's second moment included) is at
+  // risk above 1% and fails above 10%, or above the thresholds given; measured at the weight gradient of smallest
+  // rms, start or end, as the optimizer-second-moment hazard is. Epsilon 1e-4 is a binary16 normal number
+  // (IEEE 754-2019: smallest normal 2^-14), so only the second moments are judged.
+  const kept: OptimizerSpec = { ...adam, epsilon: 1e-4 };
+  // (1 − β2)·g² flushes in binary16 for |g| ≤ √(2^-25/0.001) (DESIGN.md §5 item 5; IEEE 754-2019 binary16)
+  const bound = Math.sqrt(2 ** -25 / 1e-3);
+  // standard normal quantiles (Abramowitz & Stegun 1964, table 26.1): P(|Z| ≤ 0.2533) = 0.2, P(|Z| ≤ 0.0627) = 0.05,
+  // and P(|Z| ≤ x) ≈ x·√(2/π) for small x (A&S 7.1.5): P(|Z| ≤ 0.00627) ≈ 0.005
+  const rmsFor = { "20%": bound / 0.2533, "5%": bound / 0.0627, "0.5%": bound / 0.00627 } as const;
+  const gaussian = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "gaussian", rms, log2Spread: 0 });
+  const gradients = (start: keyof typeof rmsFor, end: keyof typeof rmsFor = start): Prediction => ({
+    specName: "test",
+    tensors: [
+      tensor("dense-0/weight", "weight", constant(0.05)),
+      { ...tensor("dense-0/weight-gradient", "weight-gradient", gaussian(rmsFor[start])), end: gaussian(rmsFor[end]) },
+    ],
+    hazards: [],
+    assumptions: [],
+  });
+  const states = plan("binary16");
+
+  it.each([
+    ["20%", {}, "fails"],
+    ["20%", { flushedAtRisk: 0.1, flushedFails: 0.5 }, "at-risk"],
+    ["5%", {}, "at-risk"],
+    ["5%", { flushedAtRisk: 0.001, flushedFails: 0.03 }, "fails"],
+    ["5%", { flushedAtRisk: 0.1, flushedFails: 0.5 }, "fits"],
+    ["0.5%", {}, "fits"],
+  ] as const)("%s flushed, thresholds %o: %s", (share, thresholds, expected) => {
+    const result = checkOptimizer(kept, states, gradients(share), undefined, [], { ...DEFAULT_THRESHOLDS, ...thresholds });
+    expect(result.epsilon?.vanishes).toBe(false);
+    expect(result.verdict).toBe(expected);
+    expect(result.reasons.length).toBe(expected === "fits" ? 0 : 1);
+  });
+
+  it("the default thresholds are the risk thresholds' flushed shares", () => {
+    expect(checkOptimizer(kept, states, gradients("20%")).verdict).toBe("fails");
+    expect(checkOptimizer(kept, states, gradients("5%")).verdict).toBe("at-risk");
+  });
+
+  it("judged at the smaller of the start and end gradients, as the hazard's site is", () => {
+    const early = checkOptimizer(kept, states, gradients("20%", "0.5%"));
+    expect(early.verdict).toBe("fails");
+    expect(early.reasons[0]).toMatch(/^20\.\d% of the second moments of dense-0 flush to zero in binary16/);
+    // binary32 states keep (1 − β2)·g² down to 2^-150 (IEEE 754-2019 binary32): none of these flush
+    // binary32 states keep (1 − β2)·g² down to 2^-150 (IEEE 754-2019 binary32): a share below 1e-10 of these flush
+    expect(early.remedies).toHaveLength(1);
+    expect(early.remedies[0]).toMatch(
+      /^hold the optimizer states in binary32 instead of binary16: \de-1\d% of the second moments flush at the first step instead of 20\.\d% \(\+4 bytes per parameter for the two states\)$/,
+    );
+    expect(checkOptimizer(kept, states, gradients("0.5%", "20%")).verdict).toBe("fails");
+  });
+
+  it("told by the hazard instead of in reasons when the caller reports it, still counting in the verdict", () => {
+    const told = checkOptimizer(kept, states, gradients("20%"), undefined, ["optimizer-second-moment"]);
+    expect(told.reasons).toEqual([]);
+    expect(told.reportedAsHazards).toEqual(["optimizer-second-moment"]);
+    expect(told.verdict).toBe("fails");
+  });
+});
