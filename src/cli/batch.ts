@@ -3,9 +3,6 @@ import { expandInputs, pathsFromText } from "../batch/paths.js";
 import { runBatch } from "../batch/run.js";
 import type { BatchWorkerData } from "../batch/worker.js";
 import { batchExitCode } from "../batch/types.js";
-import { renderBatchCsv, renderBatchJsonl, renderBatchMarkdown, renderBatchText } from "../report/batch.js";
-import { colorEnabled, createStyle } from "../report/style.js";
-import { specJsonSchema } from "../spec/index.js";
 import { raiseExitCode, UserError } from "./errors.js";
 import { createProgress, type Progress } from "./progress.js";
 import { readStdin, variantsFromOptions, writeOut } from "./shared.js";
@@ -40,13 +37,14 @@ export async function runBatchCommand(paths: string[], flags: BatchFlags): Promi
   if (inputs.length === 0) throw new UserError("batch: no spec files given (stdin listed no paths)");
   let progress: Progress | undefined;
   let rows;
+  let render;
   try {
-    rows = await runBatch(inputs, variants, {
+    const running = runBatch(inputs, variants, {
       ...(workers !== undefined ? { workers } : {}),
       workerData: {
         check: flags.plan !== undefined ? { plan: flags.plan } : {},
         // --vary needs the JSON Schema in every worker: built here once, not once per worker
-        ...(variants.length > 0 ? { schema: specJsonSchema() } : {}),
+        ...(variants.length > 0 ? { schema: (await import("../spec/index.js")).specJsonSchema() } : {}),
       } satisfies BatchWorkerData,
       onRow: (done, total) => {
         progress ??= createProgress({ total, label: "checking" });
@@ -54,17 +52,12 @@ export async function runBatchCommand(paths: string[], flags: BatchFlags): Promi
         progressDone = done;
       },
     });
+    // the renderers load while the workers start and check, not before them
+    [rows, render] = await Promise.all([running, import("./batch-render.js")]);
   } finally {
     progress?.finish();
   }
-  const colour = flags.color ?? colorEnabled(process.stdout, process.env);
-  const text = flags.jsonl
-    ? renderBatchJsonl(rows)
-    : flags.csv
-      ? renderBatchCsv(rows)
-      : flags.md
-        ? renderBatchMarkdown(rows)
-        : renderBatchText(rows, { style: createStyle(colour) });
+  const text = render.renderBatch(rows, flags);
   await writeOut(text);
   raiseExitCode(batchExitCode(rows));
 }
