@@ -1,15 +1,10 @@
-import { readFile } from "node:fs/promises";
-import { evaluateTask } from "../batch/evaluate.js";
-import { check, CheckInputError, loadSpecMeasurements, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import { check, CheckInputError, loadSpecMeasurements } from "../check.js";
 import { FORMAT_NAMES, getFormat, type FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
-import { summarizeCheck } from "../report/summary.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { formatSpecIssue, formatSpecPath, loadSpec, specJsonSchema } from "../spec/index.js";
-import { variantsFromOptions } from "./shared.js";
-import { renderCheckMarkdown } from "../report/markdown-check.js";
+import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 /** Options shared by `check` and `explain`. */
@@ -95,14 +90,18 @@ export interface CheckFlags extends JudgeFlags {
 
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards. */
 export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
-  // --vary (see src/cli/batch.ts): one check per variant, each named by its values
-  const runs = flags.vary ? await checkVariants(path, flags.vary, flags) : [{ variant: null, result: await loadAndCheck(path, flags) }];
+  // --vary (see src/cli/check-vary.ts): one check per variant, each named by its values
+  const runs = flags.vary
+    ? await (await import("./check-vary.js")).checkVariants(path, flags.vary, flags)
+    : [{ variant: null, result: await loadAndCheck(path, flags) }];
+  // the Markdown renderer (and the batch table code it shares) loads only for --md
+  const renderMarkdown = flags.md ? (await import("../report/markdown-check.js")).renderCheckMarkdown : undefined;
   const texts: string[] = [];
   for (const { variant, result } of runs) {
     if (result === undefined) continue;
     texts.push(
-      flags.md
-        ? renderCheckMarkdown(result, { variant })
+      renderMarkdown
+        ? renderMarkdown(result, { variant })
         : flags.json
           ? renderCheckJson(result)
           : (variant ? `variant ${variant}\n\n` : "") +
@@ -117,57 +116,4 @@ export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
   if (flags.json && flags.vary) {
     process.stdout.write(texts.length === 0 ? "[]\n" : `[\n${texts.map((text, i) => `{ "variant": ${JSON.stringify(runs[i]?.variant)}, "result": ${text.trimEnd()} }`).join(",\n")}\n]\n`);
   } else process.stdout.write(texts.join("\n"));
-}
-
-/** What `check --vary` checks: the flags `check` shares with `explain`. */
-export interface VariantFlags {
-  format?: string[];
-  plan?: string;
-  lossScale?: string;
-}
-
-/**
- * `check --vary`: check every variant of one spec. A variant whose spec is invalid (or whose key does
- * not exist) is reported on stderr with its position in the file and exit code 2; the others are
- * checked. Resolves to the checked variants in order.
- */
-export async function checkVariants(
-  path: string,
-  options: readonly string[],
-  flags: VariantFlags,
-  extra: CheckAnswerOptions = {},
-): Promise<{ variant: string; result: CheckAnswer }[]> {
-  const variants = variantsFromOptions(options);
-  const checkOptions: CheckAnswerOptions = { ...extra };
-  const formats = parseFormats(flags.format);
-  if (formats !== undefined) checkOptions.formats = formats;
-  if (flags.lossScale !== undefined) {
-    const value = Number(flags.lossScale);
-    if (!(value > 0) || !Number.isFinite(value)) throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${flags.lossScale}"`);
-    checkOptions.lossScale = value;
-  }
-  if (flags.plan !== undefined) checkOptions.plan = flags.plan;
-  const out: { variant: string; result: CheckAnswer }[] = [];
-  for (const variant of variants) {
-    let result: CheckAnswer | undefined;
-    const outcome = await evaluateTask(
-      { file: path, variant },
-      {
-        readText: (file) => readFile(file, "utf8"),
-        schema: () => specJsonSchema(),
-        judge: (spec) => {
-          result = check(spec, checkOptions);
-          return summarizeCheck(result);
-        },
-      },
-    );
-    if (outcome.status === "error" || result === undefined) {
-      const message = outcome.status === "error" ? outcome.error.message : `${path}: not checked`;
-      process.stderr.write(`${message} [${variant.name}]\n`);
-      raiseExitCode(outcome.status === "error" && outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
-      continue;
-    }
-    out.push({ variant: variant.name, result });
-  }
-  return out;
 }

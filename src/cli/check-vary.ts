@@ -1,0 +1,61 @@
+import { readFile } from "node:fs/promises";
+import { evaluateTask } from "../batch/evaluate.js";
+import { check, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import { summarizeCheck } from "../report/summary.js";
+import { specJsonSchema } from "../spec/index.js";
+import { parseFormats } from "./check.js";
+import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { variantsFromOptions } from "./shared.js";
+
+/** What `check --vary` checks: the flags `check` shares with `explain`. */
+export interface VariantFlags {
+  format?: string[];
+  plan?: string;
+  lossScale?: string;
+}
+
+/**
+ * `check --vary`: check every variant of one spec. A variant whose spec is invalid (or whose key does
+ * not exist) is reported on stderr with its position in the file and exit code 2; the others are
+ * checked. Resolves to the checked variants in order.
+ */
+export async function checkVariants(
+  path: string,
+  options: readonly string[],
+  flags: VariantFlags,
+  extra: CheckAnswerOptions = {},
+): Promise<{ variant: string; result: CheckAnswer }[]> {
+  const variants = variantsFromOptions(options);
+  const checkOptions: CheckAnswerOptions = { ...extra };
+  const formats = parseFormats(flags.format);
+  if (formats !== undefined) checkOptions.formats = formats;
+  if (flags.lossScale !== undefined) {
+    const value = Number(flags.lossScale);
+    if (!(value > 0) || !Number.isFinite(value)) throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${flags.lossScale}"`);
+    checkOptions.lossScale = value;
+  }
+  if (flags.plan !== undefined) checkOptions.plan = flags.plan;
+  const out: { variant: string; result: CheckAnswer }[] = [];
+  for (const variant of variants) {
+    let result: CheckAnswer | undefined;
+    const outcome = await evaluateTask(
+      { file: path, variant },
+      {
+        readText: (file) => readFile(file, "utf8"),
+        schema: () => specJsonSchema(),
+        judge: (spec) => {
+          result = check(spec, checkOptions);
+          return summarizeCheck(result);
+        },
+      },
+    );
+    if (outcome.status === "error" || result === undefined) {
+      const message = outcome.status === "error" ? outcome.error.message : `${path}: not checked`;
+      process.stderr.write(`${message} [${variant.name}]\n`);
+      raiseExitCode(outcome.status === "error" && outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
+      continue;
+    }
+    out.push({ variant: variant.name, result });
+  }
+  return out;
+}
