@@ -39,7 +39,7 @@ interface LedgerNode {
 
 interface PhaseResult {
   tensors: PredictedTensor[];
-  hazards: Omit<HazardSite, "end">[];
+  hazards: HazardSite[];
 }
 
 const SLOT: Record<TensorRole, PlanSlot> = {
@@ -101,7 +101,7 @@ class Phase {
   readonly tensors: PredictedTensor[];
   /** tensors emitted so far by the end pass */
   private emitted = 0;
-  readonly hazards: Omit<HazardSite, "end">[] = [];
+  readonly hazards: HazardSite[] = [];
   /** each layer's stash by layer index */
   readonly stash: unknown[] = [];
   readonly ctx: OpContext;
@@ -196,15 +196,18 @@ class Phase {
   }
 
   hazard(layer: GraphLayer, h: OpHazard): void {
-    const site: Omit<HazardSite, "end"> = {
+    // every site is created whole, in one key order (judge.ts's trainingSites too), so its readers see one layout
+    const site: HazardSite = {
       kind: h.kind,
       layer: layer.name,
       input: profileOf(h.input, h.inputElements),
       terms: h.terms,
       guarded: h.guarded,
+      constant: undefined,
       detail: this.build ? textOf(h.detail) : "",
+      output: h.output !== undefined ? profileOf(h.output, h.outputElements ?? h.inputElements) : undefined,
+      end: undefined,
     };
-    if (h.output !== undefined) site.output = profileOf(h.output, h.outputElements ?? h.inputElements);
     this.hazards.push(site);
   }
 
@@ -392,14 +395,16 @@ class Phase {
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
-    const site: Omit<HazardSite, "end"> = {
+    const site: HazardSite = {
       kind: "gradient-sum",
       layer: layer.name,
       input: profileOf({ q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
       terms,
       guarded: false,
+      constant: undefined,
       detail: !this.build ? "" : id + this.sumDetail(),
       output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
+      end: undefined,
     };
     this.hazards.push(site);
   }
@@ -497,8 +502,10 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
       input: profileOf(lossValueMoments(seed.termValue, seed.valueLogVar), seed.terms),
       terms: seed.terms,
       guarded: false,
+      constant: undefined,
       detail: `the loss sums ${seed.terms} terms (sum reduction)`,
       output: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
+      end: undefined,
     });
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);
@@ -630,10 +637,10 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
   const end = runPhase(graph, spec, "end", false, lossScale, start.tensors);
   const tensors: TensorPrediction[] = start.tensors;
   // both passes visit the same operations in the same order; the start pass's sites are fresh objects, completed in place
-  const hazards = start.hazards as HazardSite[];
+  const hazards = start.hazards;
   for (let i = 0; i < hazards.length; i++) {
     const other = end.hazards[i];
-    if (other !== undefined) (hazards[i] as HazardSite).end = other.output === undefined ? { input: other.input } : { input: other.input, output: other.output };
+    if (other !== undefined) (hazards[i] as HazardSite).end = { input: other.input, output: other.output };
   }
   return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };
 }

@@ -522,10 +522,13 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         input: { ...perTerm, elements: 1, zeroFraction: 0 },
         terms,
         guarded: false,
+        constant: undefined,
         detail:
           training.loss.reduction === "sum"
             ? `${training.loss.kind} loss summed over ${terms} terms, times the loss scale`
             : `${training.loss.kind} loss (mean reduction), times the loss scale`,
+        output: undefined,
+        end: undefined,
       });
     }
   }
@@ -540,9 +543,12 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         input: pick.profile,
         terms: contributions,
         guarded: false,
+        constant: undefined,
         detail:
           `${pick.tensor.id} summed over ${training.workers} worker${training.workers === 1 ? "" : "s"} × ` +
           `${training.accumulationSteps} accumulation step${training.accumulationSteps === 1 ? "" : "s"} (${training.workerGradients})`,
+        output: undefined,
+        end: undefined,
       });
     }
   }
@@ -562,6 +568,8 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         guarded: false,
         constant: optimizer.epsilon,
         detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} in the optimizer-state format`,
+        output: undefined,
+        end: undefined,
       });
     }
     if (!hasSite(prediction.hazards, "optimizer-second-moment")) {
@@ -571,7 +579,10 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         input,
         terms: 1,
         guarded: false,
+        constant: undefined,
         detail: `${optimizer.kind} second moments (1 − β2)·g², β2 = ${optimizer.betas[1]}, in the optimizer-state format`,
+        output: undefined,
+        end: undefined,
       });
     }
   }
