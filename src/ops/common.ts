@@ -72,6 +72,28 @@ export function hazardInput(s: Signal, q: number, shape: Signal["shape"]): Signa
   };
 }
 
+/**
+ * A copy of a gradient with every field of {@link Gradient} written out (absent ones undefined, which every reader
+ * takes as absent), for rules that then replace a few: a spread with added keys makes a new hidden class per object
+ * in V8, and the readers of such gradients go megamorphic.
+ */
+export function gradientCopy(g: Gradient): Gradient {
+  return {
+    q: g.q,
+    zeroFraction: g.zeroFraction,
+    shape: g.shape,
+    logVar: g.logVar,
+    elementLog2Spread: g.elementLog2Spread,
+    bound: g.bound,
+    fresh: g.fresh,
+    shared: g.shared,
+    positionCorrelation: g.positionCorrelation,
+    allZero: g.allZero,
+    windowMaximum: g.windowMaximum,
+    reluGated: g.reluGated,
+  };
+}
+
 /** The shared (per-feature batch mean²) part of a signal's second moment. */
 export function sharedOf(signal: Signal): number {
   return signal.shared ?? signal.mean * signal.mean;

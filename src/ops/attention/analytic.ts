@@ -344,7 +344,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
-    const valueGradient: Gradient = { ...g(valueQ), positionCorrelation: valuePositionCorrelation };
+    const valueGradient: Gradient = { q: valueQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: valuePositionCorrelation };
     const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
     const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
     const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
@@ -407,8 +407,8 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const N = ctx.batch * P;
     // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
     // key j's own value deviation, independent between keys
-    const queryGradient: Gradient = { ...g(queryQ), positionCorrelation: heads.positionCorrelation ?? 0 };
-    const keyGradient: Gradient = { ...g(keyQ), positionCorrelation: 0 };
+    const queryGradient: Gradient = { q: queryQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: heads.positionCorrelation ?? 0 };
+    const keyGradient: Gradient = { q: keyQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: 0 };
     const wg = (weight: string, x: Signal, delta: Gradient, logVar: number): WeightGradientMoment => ({
       weight,
       q: gradientSum(ctx.batch, P, delta, x),

@@ -1,5 +1,5 @@
 /** Flatten: a reshape; every moment passes through unchanged. */
-import { sampleCorrelationOf } from "../common.js";
+import { gradientCopy, sampleCorrelationOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, Signal } from "../types.js";
 
 export const flattenRule: AnalyticRule<null> = {
@@ -8,6 +8,8 @@ export const flattenRule: AnalyticRule<null> = {
   },
   backward(_ctx, _layer, _stash, output: Gradient): BackwardResult {
     // different features of the flat gradient become different positions: they share only what samples share
-    return { input: { ...output, positionCorrelation: sampleCorrelationOf(output) }, factors: [], inner: [], weightGradients: [] };
+    const input = gradientCopy(output);
+    input.positionCorrelation = sampleCorrelationOf(output);
+    return { input, factors: [], inner: [], weightGradients: [] };
   },
 };

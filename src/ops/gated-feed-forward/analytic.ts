@@ -57,7 +57,8 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const correlation = positionCorrelationOf(input);
     gate.positionCorrelation = correlation;
     up.positionCorrelation = correlation;
-    const positionCross = { ...crossMoments(spec.activation, slopeOf(spec), gate.q, correlation, m), correlation };
+    const crossed = crossMoments(spec.activation, slopeOf(spec), gate.q, correlation, m);
+    const positionCross = { value: crossed.value, derivative: crossed.derivative, correlation };
     const product: Signal = {
       q: m.second * up.q,
       shared: m.mean * m.mean * (up.shared ?? 0),

@@ -9,7 +9,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt, positionCorrelationOf, sharedOf } from "../common.js";
+import { NO_FACTORS, factor, fmt, gradientCopy, positionCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -114,8 +114,13 @@ export const poolRule: AnalyticRule<null> = {
       const pixels = positionCount(layer.input);
       const within = Math.min(k, pixels) - 1;
       const positionCorrelation = pixels > 1 ? (within + (pixels - 1 - within) * positionCorrelationOf(output)) / (pixels - 1) : positionCorrelationOf(output);
+      const input = gradientCopy(output);
+      input.q = output.q * ratio;
+      input.shared = (output.shared ?? 0) * ratio;
+      input.positionCorrelation = positionCorrelation;
+      input.zeroFraction = share * k >= 1 ? output.zeroFraction : 1 - share * k;
       return {
-        input: { ...output, q: output.q * ratio, shared: (output.shared ?? 0) * ratio, positionCorrelation, zeroFraction: share * k >= 1 ? output.zeroFraction : 1 - share * k },
+        input,
         factors: ctx.ledger ? [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)] : NO_FACTORS,
         inner: [],
         weightGradients: [],
@@ -127,8 +132,14 @@ export const poolRule: AnalyticRule<null> = {
     const pixelsIn = positionCount(layer.input);
     const pixelsOut = positionCount(layer.output);
     const positionCorrelation = pixelsIn > 1 ? (positionCorrelationOf(output) * (pixelsOut - 1)) / (pixelsIn - 1) : positionCorrelationOf(output);
+    const input = gradientCopy(output);
+    input.q = output.q * share;
+    input.shared = (output.shared ?? 0) * share * share;
+    input.positionCorrelation = positionCorrelation;
+    input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
+    input.windowMaximum = k;
     return {
-      input: { ...output, q: output.q * share, shared: (output.shared ?? 0) * share * share, positionCorrelation, zeroFraction: 1 - reached * (1 - output.zeroFraction), windowMaximum: k },
+      input,
       factors: ctx.ledger ? [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)] : NO_FACTORS,
       inner: [],
       weightGradients: [],
