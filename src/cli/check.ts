@@ -4,7 +4,8 @@ import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath } from "../spec/index.js";
+import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 /** Options shared by `check` and `explain`. */
@@ -53,13 +54,8 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   if (lossScale !== undefined) options.lossScale = lossScale;
   if (flags.plan !== undefined) options.plan = flags.plan;
 
-  const loaded = await loadSpec(path);
-  if (!loaded.ok) {
-    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-    raiseExitCode(EXIT.inputError);
-    return undefined;
-  }
-  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  const loaded = await loadSpecReporting(path);
+  if (loaded === undefined) return undefined;
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const measurements = await loadSpecMeasurements(loaded.spec);
   for (const problem of measurements?.problems ?? []) process.stderr.write(`headroom: ${problem}\n`);

@@ -1,20 +1,16 @@
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
-import { formatSpecIssue, formatSpecPath, loadSpec } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath } from "../spec/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
+import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { buildGraph } from "../graph/index.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
 export async function runCompare(path: string, flags: { onlySpecPlans?: boolean; json?: boolean }): Promise<void> {
-  const loaded = await loadSpec(path);
-  if (!loaded.ok) {
-    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-    raiseExitCode(EXIT.inputError);
-    return;
-  }
-  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  const loaded = await loadSpecReporting(path);
+  if (loaded === undefined) return;
   const spec = loaded.spec;
   const built = buildGraph(spec);
   if (!built.ok) {

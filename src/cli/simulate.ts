@@ -4,7 +4,6 @@ import { predict } from "../magnitude/index.js";
 import { escapeHtml } from "../report/html.js";
 import { formatBinades, formatBytes, formatPercent, formatValue } from "../report/number.js";
 import { renderTable, type Cell } from "../report/table.js";
-import { formatSpecIssue, loadSpec } from "../spec/index.js";
 import {
   simulate,
   SimulationTooLarge,
@@ -17,6 +16,7 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import { writeFileAtomic } from "./shared.js";
+import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 interface SimulateFlags {
@@ -39,13 +39,8 @@ const ESTIMATE_NOTE =
 
 /** `headroom simulate SPEC`: run the network in float64 with planned storage rounding and compare with the prediction. */
 export async function runSimulate(path: string, flags: SimulateFlags): Promise<void> {
-  const loaded = await loadSpec(path);
-  if (!loaded.ok) {
-    for (const issue of loaded.issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-    raiseExitCode(EXIT.inputError);
-    return;
-  }
-  for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
+  const loaded = await loadSpecReporting(path);
+  if (loaded === undefined) return;
   const options = {
     steps: wholeNumber("--steps", flags.steps, 0, 10000),
     seed: wholeNumber("--seed", flags.seed, 0, Number.MAX_SAFE_INTEGER),
