@@ -112,8 +112,8 @@ export interface AppliedLossScale {
 
 /** Everything `check` found: plain JSON-able data (documented field by field in README.md). */
 export interface CheckResult {
-  /** version of this result's layout */
-  version: 1;
+  /** version of this result's layout: 2 since Adam's second moment has its own hazard kind and the optimizer says which findings it leaves to the hazards */
+  version: 2;
   spec: { name: string; source: string; description: string };
   /** the plan judged */
   plan: PrecisionPlan;
@@ -239,7 +239,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   checkAssumptions(assumptions, plan, settings, lossScale, training.length > 0);
 
   return {
-    version: 1,
+    version: 2,
     spec: { name: spec.name, source: spec.source, description: spec.description },
     plan,
     lossScale,
