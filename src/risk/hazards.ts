@@ -9,7 +9,7 @@ import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { flushedSecondMoments, flushedSecondMomentsVerdict, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
+import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -65,6 +65,9 @@ class Draft {
   extra = Number.NaN;
   /** the result overflows only where it is kept in the activation format, not widened */
   notWidened = false;
+  /** the tensor contributing most to a network-wide count, and its share of it ("" and NaN for none) */
+  top = "";
+  topValue = Number.NaN;
 }
 
 /** The drafts of one side (start or end) of a site: `count` records of `items` are in use. */
@@ -145,6 +148,8 @@ function fill(
   draft.wording = wording;
   draft.extra = extra;
   draft.notWidened = notWidened;
+  draft.top = "";
+  draft.topValue = Number.NaN;
 }
 
 /**
@@ -242,7 +247,7 @@ function draftsFor(site: HazardSite, input: MagnitudeProfile, output: MagnitudeP
     case "gradient-sum":
       return gradientSum(site, input, output, context, list);
     case "optimizer-constant":
-      return optimizerConstant(site, input, context, list);
+      return optimizerConstant(site, input, context, list, list === END ? "end" : "start");
     case "optimizer-second-moment":
       return secondMoment(input, context, list);
   }
@@ -309,7 +314,10 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
       return (
         `The optimizer epsilon ${plainNumber(draft.extra)} rounds to zero in ${format}` +
         (value >= 1
-          ? `, and about ${plainNumber(value)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
+          ? draft.top !== ""
+            ? `, and about ${plainNumber(value)} second-moment elements of the weight gradients are zero per step (most in ` +
+              `${draft.top}, about ${plainNumber(draft.topValue)}), so the update divides by zero there.`
+            : `, and about ${plainNumber(value)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
           : `; an update divides by zero wherever a second moment is zero.`)
       );
     default:
@@ -458,7 +466,9 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
 // is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero.
-function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList): void {
+// A site of the training setup carries the network's weight gradients: the count sums over all of them at the side
+// judged (src/risk/second-moments.ts); a site of the prediction is judged at its own gradient.
+function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList, side: "start" | "end"): void {
   const limits = context.optimizerStates;
   const epsilon = site.constant;
   if (epsilon === undefined) return;
@@ -467,9 +477,15 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
       "fits", 0, EPSILON_KEPT, epsilon, false);
   } else {
-    const zeros = zeroSecondMoments(gradient, limits.flushBound, context.beta2);
-    fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
+    const network = site.gradients === undefined ? undefined : networkZeroSecondMomentsAt(site.gradients, side, limits.flushBound, context.beta2);
+    const zeros = network === undefined ? zeroSecondMoments(gradient, limits.flushBound, context.beta2) : network.perStep;
+    const draft = nextDraft(list);
+    fill(draft, limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,
       vanishedEpsilonVerdict(zeros), 0, EPSILON_FLUSHED, epsilon, false);
+    if (network !== undefined && network.top !== "") {
+      draft.top = network.top;
+      draft.topValue = network.topCount;
+    }
   }
 }
 

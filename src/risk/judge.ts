@@ -555,7 +555,8 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
 
   const optimizer = training.optimizer;
   if (optimizer.kind === "adam" || optimizer.kind === "adamw") {
-    // both judged at the smallest gradient: its second moments are the likeliest to flush, and there ε matters most
+    // named after the smallest gradient, whose second moments are the likeliest to flush; the second moment is judged
+    // there, while ε's count of zero second moments sums over every weight gradient (src/risk/second-moments.ts)
     const pick = byRms(weightGradients, "smallest");
     const layer = pick?.tensor.layer ?? "optimizer";
     const input = pick?.profile ?? constantProfile(0);
@@ -569,7 +570,9 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         constant: optimizer.epsilon,
         detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} in the optimizer-state format`,
         output: undefined,
-        end: undefined,
+        // judged at the start and the end: its count sums over every weight gradient at one side of the horizon
+        end: { input },
+        gradients: weightGradients,
       });
     }
     if (!hasSite(prediction.hazards, "optimizer-second-moment")) {

@@ -92,3 +92,55 @@ export function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "s
   return bestTensor === undefined || bestProfile === undefined ? undefined : { tensor: bestTensor, profile: bestProfile };
 }
 
+
+/** The expected zero second moments per step across the network, at one side of the horizon, and the tensor giving most. */
+export interface NetworkZeroSecondMoments {
+  perStep: number;
+  at: "start" | "end";
+  /** the id of the weight gradient contributing most, and its count ("" and 0 without weight gradients) */
+  top: string;
+  topCount: number;
+}
+
+/**
+ * Zero second moments per step summed over every weight gradient at the start or the end of the horizon: each
+ * element of the network is one term of Adam's update, so a division by zero is expected in a step once the sum
+ * over all of them reaches 1 (expectations add; Kingma & Ba 2015, the update), not only within one tensor.
+ */
+export function networkZeroSecondMomentsAt(
+  weightGradients: readonly TensorPrediction[],
+  at: "start" | "end",
+  flushBound: number,
+  beta2: number,
+): NetworkZeroSecondMoments {
+  let perStep = 0;
+  let top = "";
+  let topCount = 0;
+  for (let i = 0; i < weightGradients.length; i++) {
+    const tensor = weightGradients[i] as TensorPrediction;
+    const count = zeroSecondMoments(at === "start" ? tensor.start : tensor.end, flushBound, beta2);
+    perStep += count;
+    if (count > topCount) {
+      top = tensor.id;
+      topCount = count;
+    }
+  }
+  return { perStep, at, top, topCount };
+}
+
+/** The worse (larger) of the start and end network-wide counts; the start on a tie, as a hazard's start/end choice. */
+export function networkZeroSecondMoments(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMoments {
+  const start = networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2);
+  const end = networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2);
+  return end.perStep > start.perStep ? end : start;
+}
+
+/** The weight gradients of a prediction, in its order. */
+export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
+  const out: TensorPrediction[] = [];
+  for (let i = 0; i < prediction.tensors.length; i++) {
+    const tensor = prediction.tensors[i] as TensorPrediction;
+    if (tensor.role === "weight-gradient") out.push(tensor);
+  }
+  return out;
+}

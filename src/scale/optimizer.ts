@@ -9,8 +9,10 @@ import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scal
 import {
   flushedSecondMoments,
   flushedSecondMomentsVerdict,
+  networkZeroSecondMoments,
   stateSiteGradients,
   vanishedEpsilonVerdict,
+  weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
 import type { FormatName } from "../formats/names.js";
@@ -253,12 +255,18 @@ export function checkOptimizer(
     : null;
   // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
   // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
-  let zerosPerStep = 0;
+  // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site
+  let zeros: ZeroCount = { perStep: 0, top: "" };
   if (epsilon?.vanishes) {
     const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
-    const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
-    for (let i = 0; i < gradients.length; i++) {
-      zerosPerStep = Math.max(zerosPerStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, flushBound, optimizer.betas[1]));
+    if (hasOwnSite(prediction, "optimizer-constant")) {
+      const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
+      for (let i = 0; i < gradients.length; i++) {
+        zeros.perStep = Math.max(zeros.perStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, flushBound, optimizer.betas[1]));
+      }
+    } else {
+      const network = networkZeroSecondMoments(weightGradientsOf(prediction), flushBound, optimizer.betas[1]);
+      zeros = { perStep: network.perStep, top: network.top };
     }
   }
 
@@ -284,7 +292,19 @@ export function checkOptimizer(
     };
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zerosPerStep, secondMoments, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
+  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
+}
+
+// Zero second moments per step where a vanishing epsilon is judged, and the weight gradient giving most ("" when
+// judged at one site of the prediction).
+interface ZeroCount {
+  perStep: number;
+  top: string;
+}
+
+function hasOwnSite(prediction: Prediction, kind: OptimizerStateHazard): boolean {
+  for (let i = 0; i < prediction.hazards.length; i++) if ((prediction.hazards[i] as Prediction["hazards"][number]).kind === kind) return true;
+  return false;
 }
 
 // Flushed second moments at their hazard's gradients: the share in the state format, the share binary32 states
@@ -378,7 +398,7 @@ function summarise(
   plan: PrecisionPlan,
   tensors: WeightOptimizerCheck[],
   epsilon: OptimizerCheck["epsilon"],
-  zerosPerStep: number,
+  zeros: ZeroCount,
   secondMoments: SecondMoments | null,
   formats: {
     weightFormat: Format;
@@ -511,10 +531,10 @@ function summarise(
     }
   }
   if (epsilon?.vanishes) {
-    raise(vanishedEpsilonVerdict(zerosPerStep));
+    raise(vanishedEpsilonVerdict(zeros.perStep));
     const where =
-      zerosPerStep >= 1
-        ? `about ${zerosPerStep.toPrecision(3)} second moments are 0 per step, so the update divides by zero there.`
+      zeros.perStep >= 1
+        ? `about ${zeros.perStep.toPrecision(3)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
     tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}`);
     // the smallest value the state format keeps: its smallest subnormal, or its smallest normal when subnormals flush

@@ -4,6 +4,7 @@ import { check, needsLossScale } from "../../src/check.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 import type { CheckResult } from "../../src/risk/index.js";
+import { zeroSecondMoments } from "../../src/risk/second-moments.js";
 
 const HAZARDS = "test/fixtures/specs/hazards";
 
@@ -99,6 +100,31 @@ describe("purpose-built hazards, end to end", () => {
       expect(result.verdict).toBe(expected);
     },
   );
+
+  // the count that decides a division by zero per step sums over every weight gradient: three layers each below one
+  // expected zero per step fail together (input scale 3.5); with all of them smaller (scale 8) the sum stays below one
+  it.each([
+    ["3.5", "fails"],
+    ["8", "at-risk"],
+  ])("epsilon rounding to 0 in binary16 states across three small layers, input scale %s: %s in the hazard, the optimizer check and the verdict", (scale, expected) => {
+    const result = check(load(`${HAZARDS}/adam-epsilon-network.yaml`, (t) => t.replace("scale: 3.5", `scale: ${scale}`)));
+    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant");
+    const evaluation = epsilon?.evaluations.find((e) => e.format === "binary16");
+    const zeros = evaluation?.value ?? Number.NaN;
+    expect(expected === "fails" ? zeros > 1.2 : zeros < 0.8).toBe(true);
+    // every layer alone stays below one expected zero per step (binary16 flush bound 2^-25, β2 = 0.999): only the sum decides
+    const gradients = result.tensors.filter((t) => t.role === "weight-gradient");
+    expect(gradients).toHaveLength(3);
+    for (const t of gradients) expect(Math.max(zeroSecondMoments(t.start, 2 ** -25, 0.999), zeroSecondMoments(t.end, 2 ** -25, 0.999))).toBeLessThan(0.95);
+    expect(epsilon?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", expected]]);
+    if (expected === "fails") {
+      expect(evaluation?.sentence).toContain("most in hidden-a/weight-gradient");
+    }
+    expect(result.optimizer.epsilon?.vanishes).toBe(true);
+    expect(result.optimizer.verdict).toBe(expected);
+    expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
+    expect(result.verdict).toBe(expected);
+  });
 
   it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {
     const result = check(load(`${HAZARDS}/loss-sum-reduction.yaml`));

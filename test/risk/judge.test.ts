@@ -11,6 +11,7 @@ import {
   tensorFormatRisk,
   tensorStatistics,
 } from "../../src/risk/index.js";
+import { trainingSites } from "../../src/risk/judge.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
@@ -137,11 +138,18 @@ describe("judgePrediction", () => {
   it("evaluates a site once per plan: each format keeps what evaluating the site under its own plan gives", () => {
     const s = spec();
     const result = judgePrediction(s, PREDICTION, { formats: ["binary16", "binary32", "bfloat16"], lossScale: 8 });
-    for (const hazard of result.hazards) {
+    // the sites judged, in the result's order: the prediction's, then the training setup's (whose epsilon site
+    // carries the weight gradients its count sums over, which the result does not repeat)
+    const sites = [...PREDICTION.hazards, ...trainingSites(s, PREDICTION)];
+    expect(sites).toHaveLength(result.hazards.length);
+    for (let i = 0; i < result.hazards.length; i++) {
+      const hazard = result.hazards[i]!;
+      const site = sites[i]!;
+      expect([site.kind, site.layer, site.input, site.detail]).toEqual([hazard.kind, hazard.layer, hazard.input, hazard.detail]);
       for (const format of ["binary16", "binary32", "bfloat16"] as const) {
         const plan = planFor(s.precision, format);
         const alone = evaluateHazard(
-          { kind: hazard.kind, layer: hazard.layer, input: hazard.input, terms: hazard.terms, guarded: hazard.guarded, detail: hazard.detail, ...(hazard.constant === undefined ? {} : { constant: hazard.constant }) },
+          site,
           {
             activations: limitsFor(plan, plan.activations),
             gradients: limitsFor(plan, plan.gradients),

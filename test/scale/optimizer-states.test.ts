@@ -192,3 +192,30 @@ describe("checkOptimizer: flushed second moments graded as their hazard grades t
     expect(told.verdict).toBe("fails");
   });
 });
+
+describe("checkOptimizer: zero second moments per step are counted across every weight gradient", () => {
+  // README.md's thresholds table: one expected zero second moment per step in the whole network fails; three weight
+  // gradients with 0.5 exact zeros each (0.0005 of 1000, constant |g| = 1e-2 above the flush bound ≈ 5.46e-3) give 1.5
+  const gradient = (id: string, zeroFraction: number): TensorPrediction => ({
+    ...tensor(id, "weight-gradient", { elements: 1000, zeroFraction, shape: "constant", rms: 1e-2, log2Spread: 0 }),
+    layer: id.split("/")[0] as string,
+  });
+  const net = (zeroFraction: number): Prediction => ({
+    specName: "test",
+    tensors: [
+      tensor("a/weight", "weight", constant(0.05)),
+      gradient("a/weight-gradient", zeroFraction),
+      gradient("b/weight-gradient", zeroFraction),
+      gradient("c/weight-gradient", 2 * zeroFraction),
+    ],
+    hazards: [],
+    assumptions: [],
+  });
+
+  it("each tensor below one but 2 in all fails, naming the tensor giving most; 0.8 in all is at risk", () => {
+    const fails = checkOptimizer(adam, plan("binary16"), net(0.0005));
+    expect(fails.verdict).toBe("fails");
+    expect(fails.reasons.join(" ")).toContain("about 2.00 second moments are 0 per step (most in c/weight-gradient)");
+    expect(checkOptimizer(adam, plan("binary16"), net(0.0002)).verdict).toBe("at-risk");
+  });
+});
