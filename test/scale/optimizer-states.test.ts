@@ -176,7 +176,6 @@ describe("checkOptimizer: flushed second moments graded as their hazard grades t
     const early = checkOptimizer(kept, states, gradients("20%", "0.5%"));
     expect(early.verdict).toBe("fails");
     expect(early.reasons[0]).toMatch(/^20\.\d% of the second moments of dense-0 flush to zero in binary16/);
-    // binary32 states keep (1 − β2)·g² down to 2^-150 (IEEE 754-2019 binary32): none of these flush
     // binary32 states keep (1 − β2)·g² down to 2^-150 (IEEE 754-2019 binary32): a share below 1e-10 of these flush
     expect(early.remedies).toHaveLength(1);
     expect(early.remedies[0]).toMatch(
