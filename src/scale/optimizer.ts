@@ -253,12 +253,13 @@ export function checkOptimizer(
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
+  // the states' flush bound as the hazards take it (bfloat16 modelled flush-to-zero, unlike stateFlushBound above)
+  const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
   // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
   // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
   // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site
   let zeros: ZeroCount = { perStep: 0, top: "" };
   if (epsilon?.vanishes) {
-    const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
     if (hasOwnSite(prediction, "optimizer-constant")) {
       const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
       for (let i = 0; i < gradients.length; i++) {
@@ -275,7 +276,6 @@ export function checkOptimizer(
   let secondMoments: SecondMoments | null = null;
   if (adamLike) {
     const site = stateSiteGradients(prediction, "optimizer-second-moment");
-    const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
     const binary32Bound = limitsFor(plan, "binary32").flushBound;
     let share = 0;
     let inBinary32 = 0;
