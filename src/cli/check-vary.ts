@@ -3,16 +3,9 @@ import { evaluateTask } from "../batch/evaluate.js";
 import { check, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import { summarizeCheck } from "../report/summary.js";
 import { specJsonSchema } from "../spec/index.js";
-import { parseFormats } from "./check.js";
+import { parseFormats, type JudgeFlags } from "./check.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { variantsFromOptions } from "./shared.js";
-
-/** What `check --vary` checks: the flags `check` shares with `explain`. */
-export interface VariantFlags {
-  format?: string[];
-  plan?: string;
-  lossScale?: string;
-}
 
 /**
  * `check --vary`: check every variant of one spec. A variant whose spec is invalid (or whose key does
@@ -22,11 +15,10 @@ export interface VariantFlags {
 export async function checkVariants(
   path: string,
   options: readonly string[],
-  flags: VariantFlags,
-  extra: CheckAnswerOptions = {},
+  flags: JudgeFlags,
 ): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
-  const checkOptions: CheckAnswerOptions = { ...extra };
+  const checkOptions: CheckAnswerOptions = {};
   const formats = parseFormats(flags.format);
   if (formats !== undefined) checkOptions.formats = formats;
   if (flags.lossScale !== undefined) {
