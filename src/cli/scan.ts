@@ -49,25 +49,22 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   });
   let reported = 0;
   let finishedFiles = 0;
+  const advanceTo = (bytes: number): void => {
+    const mib = Math.floor(bytes / MIB);
+    if (mib > reported) {
+      progress.tick(mib - reported);
+      reported = mib;
+    }
+  };
   let result: ScanResult;
   try {
     result = await scanFiles(expanded.paths, {
       targets,
       tolerance,
-      onProgress: (bytesRead) => {
-        const mib = Math.floor((finishedFiles + bytesRead) / MIB);
-        if (mib > reported) {
-          progress.tick(mib - reported);
-          reported = mib;
-        }
-      },
+      onProgress: (bytesRead) => advanceTo(finishedFiles + bytesRead),
       onFile: (scan) => {
         finishedFiles += scan.size;
-        const mib = Math.floor(finishedFiles / MIB);
-        if (mib > reported) {
-          progress.tick(mib - reported);
-          reported = mib;
-        }
+        advanceTo(finishedFiles);
       },
     });
   } finally {
