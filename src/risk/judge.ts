@@ -18,7 +18,7 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
-import { byRms } from "./second-moments.js";
+import { byRms, weightGradientsOf } from "./second-moments.js";
 import { scaledTensor, scaledTensorRisk, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -497,11 +497,7 @@ function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number
  * across workers and accumulation steps, and Adam's epsilon. Added when the prediction has none of the kind.
  */
 export function trainingSites(spec: NetworkSpec, prediction: Prediction): HazardSite[] {
-  const weightGradients: TensorPrediction[] = [];
-  for (let i = 0; i < prediction.tensors.length; i++) {
-    const tensor = prediction.tensors[i] as TensorPrediction;
-    if (tensor.role === "weight-gradient") weightGradients.push(tensor);
-  }
+  const weightGradients = weightGradientsOf(prediction);
   const training = spec.training;
   const sites: HazardSite[] = [];
 

@@ -58,12 +58,7 @@ export function stateSiteGradients(
     const site = hazards[i] as HazardSite;
     if (site.kind === kind) return { layer: site.layer, gradients: site.end === undefined ? [site.input] : [site.input, site.end.input] };
   }
-  const weightGradients: TensorPrediction[] = [];
-  for (let i = 0; i < prediction.tensors.length; i++) {
-    const tensor = prediction.tensors[i] as TensorPrediction;
-    if (tensor.role === "weight-gradient") weightGradients.push(tensor);
-  }
-  const pick = byRms(weightGradients, "smallest");
+  const pick = byRms(weightGradientsOf(prediction), "smallest");
   return {
     layer: pick?.tensor.layer ?? "optimizer",
     gradients: [pick?.profile ?? { elements: 1, zeroFraction: 0, shape: "constant", rms: 0, log2Spread: 0 }],
