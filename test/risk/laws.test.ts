@@ -65,7 +65,8 @@ function apart(actual: number, expected: number): number {
 
 describe("draw sums of the element laws", () => {
   // the monotone sum (exceedance probabilities, closures) stops at 1e-9 of the sum and of its complement; the
-  // Gaussian shares read off the shared lattices are held to the direct sums in the next test
+  // Gaussian shares read off the shared rows are held to the direct sums in "read off the shared lattices stay
+  // within 2e-6 of the direct rule" below
   it("stay within 2e-9 of the rule's sum, relative to the value and to its complement", () => {
     let worst = 0;
     let worstCase: unknown = null;
@@ -118,9 +119,10 @@ describe("draw sums of the element laws", () => {
     }
   });
 
-  // the Gaussian "below" levels read off the shared rows are checked against these in the next test
-  // the searches start from different levels and step differently (any-above from the step of g shifted by the
-  // spread, in single lattice points), so this also holds that the bracket found does not depend on the start
+  // the Gaussian "below" levels, asked here of the search's own lattice (viaRows false), are held to the levels read
+  // off the shared rows in the last test of this block. The searches start from different levels and step
+  // differently (any-above from the step of g shifted by the spread, in single lattice points), so this also holds
+  // that the bracket found does not depend on the start
   it("lattice crossings equal mixtureCrossing with the law's closures", () => {
     for (const { profile } of sweep()) {
       if (profile.shape === "constant" || (profile.shape === "log-normal" && !(profile.elementLog2Spread! > 0))) continue;
