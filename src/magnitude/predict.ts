@@ -131,10 +131,11 @@ class Phase {
   private prepareWeights(layer: GraphLayer): void {
     const growth = this.spec.training.horizon.weightGrowth;
     const weights = layer.weights;
-    const main = weights[0];
+    // a layer's main weight comes first: the loop starts past it, so it is present whenever the loop runs
+    const main = weights[0] as GraphWeight;
     for (let i = 1; i < weights.length; i++) {
       const w = weights[i] as GraphWeight;
-      if (w.distribution === "zeros" && w !== main && main !== undefined) {
+      if (w.distribution === "zeros") {
         const mainRms = main.distribution === "constant" ? Math.abs(main.value ?? 0) : Math.sqrt(main.variance);
         this.endVariance.set(w, (Math.max(growth - 1, 0) * mainRms) ** 2);
       }
