@@ -270,14 +270,14 @@ function pool(): (typeof LAYERS)[string] {
 }
 
 // the layer types as literals (see oneOf)
-const LAYER_NAMES = new Map<string, string>(Object.keys(LAYERS).map((v) => [v, v]));
+const LAYER_TYPE = oneOf(Object.keys(LAYERS));
 
 function layer(value: unknown): unknown {
   if (typeof value === "string") return BARE(value);
   const type = (value as Data | null)?.["type"];
   const kind = typeof type === "string" && Object.hasOwn(LAYERS, type) ? LAYERS[type]! : refuse();
   const raw = mapping(value, kind.keys);
-  const out: Data = { type: LAYER_NAMES.get(type as string) };
+  const out: Data = { type: LAYER_TYPE(type) };
   optional(out, raw, "name", name);
   kind.fields(out, raw);
   return out;
