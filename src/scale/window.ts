@@ -426,8 +426,15 @@ class WindowSearch {
       }
       highs[i] = b;
     }
+    this.sumHighs();
+  }
+
+  // `high` summed afresh over the tensors not set aside (an infinite bound has left it infinite)
+  private sumHighs(): void {
+    const state = this.state;
+    const highs = this.highs;
     let high = 0;
-    for (let i = 0; i < n; i++) if (state[i] !== 3) high += highs[i] as number;
+    for (let i = 0; i < this.n; i++) if (state[i] !== 3) high += highs[i] as number;
     this.high = high;
   }
 
@@ -442,9 +449,7 @@ class WindowSearch {
       // an infinite sum is summed afresh
       if (highs[i] === Infinity) {
         highs[i] = b;
-        let high = 0;
-        for (let j = 0; j < this.n; j++) if (this.state[j] !== 3) high += highs[j] as number;
-        this.high = high;
+        this.sumHighs();
       } else {
         this.high += b - (highs[i] as number);
         highs[i] = b;
