@@ -87,7 +87,6 @@ export function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "s
   return bestTensor === undefined || bestProfile === undefined ? undefined : { tensor: bestTensor, profile: bestProfile };
 }
 
-
 /** The expected zero second moments per step across the network, at one side of the horizon, and the tensor giving most. */
 export interface NetworkZeroSecondMoments {
   perStep: number;

@@ -299,11 +299,11 @@ class WindowSearch {
   }
 
   // Whether the union bound at k is within the budget, from bounds where they decide. Each tensor starts from what
-  // is known of it at any exponent; the first few in priority order (those likeliest to overflow) are integrated if
-  // their upper bound could break the budget alone; the tensors still unbounded get their cheap bounds (at the
-  // lowest exponent above k found over the budget, which serves the later steps of the search too); then the tensor
-  // with the largest upper bound is tightened, one step at a time (a tighter upper bound, then the integral), until
-  // the exact part plus the remaining bounds decides: the same answer as summing every integral.
+  // is known of it at any exponent; the tensors still unbounded get their cheap bounds (at the lowest exponent above
+  // k found over the budget, which serves the later steps of the search too); then the tensor with the largest upper
+  // bound is tightened, one step at a time (a tighter upper bound, then the integral; at once the integral when its
+  // tighter bound could break the budget alone), until the exact part plus the remaining bounds decides: the same
+  // answer as summing every integral.
   private riskWithin(k: number, active: Uint8Array): boolean {
     const budget = this.o.riskBudget;
     const n = this.n;
