@@ -48,11 +48,12 @@ let tuned: BatchFlag[] = [];
 
 /**
  * Set the batch flags for a pool of `workers` threads (workers started afterwards take them); the
- * returned function puts V8's defaults back once the last such pool has ended.
+ * returned function puts V8's defaults back once the last such pool has ended. `v8Version` is the
+ * running engine's unless a test names another.
  */
-export function tuneTieringForBatch(workers: number): () => void {
+export function tuneTieringForBatch(workers: number, v8Version: string = process.versions.v8): () => void {
   if (active === 0) {
-    tuned = batchFlagsToSet(workers, availableParallelism(), process.versions.v8, process.execArgv, process.env.NODE_OPTIONS);
+    tuned = batchFlagsToSet(workers, availableParallelism(), v8Version, process.execArgv, process.env.NODE_OPTIONS);
     if (tuned.length === 0) return () => {};
     for (const flag of tuned) setFlagsFromString(`${flag.name}=${flag.batch}`);
   }

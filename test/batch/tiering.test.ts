@@ -34,22 +34,35 @@ describe("batchFlagsToSet", () => {
 });
 
 describe("tuneTieringForBatch", () => {
-  test("sets the flags once for overlapping pools and puts V8's defaults back after the last one ends, once", () => {
-    // the engine the flags were measured on (Node 20); elsewhere none are set and this check does not apply
-    expect(process.versions.v8.startsWith("11.")).toBe(true);
-    const batch = BATCH_V8_FLAGS.map((flag) => `${flag.name}=${flag.batch}`);
-    const defaults = BATCH_V8_FLAGS.map((flag) => `${flag.name}=${flag.v8Default}`);
+  // version strings of the engines package.json allows: Node 20's V8 11.3 (where the flags were measured) and Node 22's V8 12.4
+  const V8_11 = "11.3.244.8-node.38";
+  const V8_12 = "12.4.254.21-node.33";
+  const batch = BATCH_V8_FLAGS.map((flag) => `${flag.name}=${flag.batch}`);
+  const defaults = BATCH_V8_FLAGS.map((flag) => `${flag.name}=${flag.v8Default}`);
+
+  test("on V8 11, sets the flags once for overlapping pools and puts V8's defaults back after the last one ends, once", () => {
     flagsSet.length = 0;
-    const first = tuneTieringForBatch(64);
+    const first = tuneTieringForBatch(64, V8_11);
     expect(flagsSet).toEqual(batch);
-    const second = tuneTieringForBatch(64);
+    const second = tuneTieringForBatch(64, V8_11);
     first();
     first();
     expect(flagsSet).toEqual(batch);
     second();
     expect(flagsSet).toEqual([...batch, ...defaults]);
     second();
-    tuneTieringForBatch(1)();
+    tuneTieringForBatch(1, V8_11)();
+    expect(flagsSet).toEqual([...batch, ...defaults]);
+  });
+
+  test("on V8 12, sets nothing and puts nothing back, and a later pool on V8 11 still sets the flags", () => {
+    flagsSet.length = 0;
+    const first = tuneTieringForBatch(64, V8_12);
+    const second = tuneTieringForBatch(64, V8_12);
+    second();
+    first();
+    expect(flagsSet).toEqual([]);
+    tuneTieringForBatch(64, V8_11)();
     expect(flagsSet).toEqual([...batch, ...defaults]);
   });
 });
