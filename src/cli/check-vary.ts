@@ -3,8 +3,8 @@ import { evaluateTask } from "../batch/evaluate.js";
 import { check, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import { summarizeCheck } from "../report/summary.js";
 import { specJsonSchema } from "../spec/index.js";
-import { parseFormats, type JudgeFlags } from "./check.js";
-import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { judgeOptions, type JudgeFlags } from "./check.js";
+import { EXIT, raiseExitCode } from "./errors.js";
 import { variantsFromOptions } from "./shared.js";
 
 /**
@@ -18,15 +18,7 @@ export async function checkVariants(
   flags: JudgeFlags,
 ): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
-  const checkOptions: CheckAnswerOptions = {};
-  const formats = parseFormats(flags.format);
-  if (formats !== undefined) checkOptions.formats = formats;
-  if (flags.lossScale !== undefined) {
-    const value = Number(flags.lossScale);
-    if (!(value > 0) || !Number.isFinite(value)) throw new UserError(`--loss-scale: expected a positive number such as 1024, got "${flags.lossScale}"`);
-    checkOptions.lossScale = value;
-  }
-  if (flags.plan !== undefined) checkOptions.plan = flags.plan;
+  const checkOptions: CheckAnswerOptions = judgeOptions(flags);
   const out: { variant: string; result: CheckAnswer }[] = [];
   for (const variant of variants) {
     let result: CheckAnswer | undefined;

@@ -32,6 +32,17 @@ export function parseFormats(values: readonly string[] | undefined): FormatName[
   return names;
 }
 
+/** `--format`, `--plan` and `--loss-scale` as check options: one reading for every path (`check`, `check --vary`, `explain`, `report`). */
+export function judgeOptions(flags: JudgeFlags): CheckOptions {
+  const options: CheckOptions = {};
+  const formats = parseFormats(flags.format);
+  if (formats !== undefined) options.formats = formats;
+  const lossScale = parseLossScale(flags.lossScale);
+  if (lossScale !== undefined) options.lossScale = lossScale;
+  if (flags.plan !== undefined) options.plan = flags.plan;
+  return options;
+}
+
 function parseLossScale(text: string | undefined): number | undefined {
   if (text === undefined) return undefined;
   const value = Number(text);
@@ -47,12 +58,7 @@ function parseLossScale(text: string | undefined): number | undefined {
  * (file:line:column: path: message) and end the command with exit code 2.
  */
 export async function loadAndCheck(path: string, flags: JudgeFlags, extra: CheckOptions = {}): Promise<CheckResult | undefined> {
-  const options: CheckOptions = { ...extra };
-  const formats = parseFormats(flags.format);
-  if (formats !== undefined) options.formats = formats;
-  const lossScale = parseLossScale(flags.lossScale);
-  if (lossScale !== undefined) options.lossScale = lossScale;
-  if (flags.plan !== undefined) options.plan = flags.plan;
+  const options: CheckOptions = { ...extra, ...judgeOptions(flags) };
 
   const loaded = await loadSpecReporting(path);
   if (loaded === undefined) return undefined;

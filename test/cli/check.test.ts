@@ -112,4 +112,22 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(notPower.stderr).toMatch(/--loss-scale: expected a power of two such as 1024 or 0.5, got "1000"/);
     expect(notPower.stderr).not.toMatch(STACK);
   });
+
+  it("check --vary reads --loss-scale by the same rule and message as a plain check", () => {
+    // a loss scale is a power of two so scaling and unscaling are exact (Micikevicius et al. 2018 §3.2)
+    const plain = runCli(["check", "--loss-scale", "1000", "specs/deep-relu-he.yaml"]);
+    const varied = runCli(["check", "--loss-scale", "1000", "--vary", "training.batch=4,64", "specs/deep-relu-he.yaml"]);
+    expect(varied.status).toBe(2);
+    expect(varied.stdout).toBe("");
+    expect(varied.stderr).toBe(plain.stderr);
+    expect(varied.stderr).toBe('headroom: --loss-scale: expected a power of two such as 1024 or 0.5, got "1000"\n');
+    // a power of two is taken by every variant
+    const good = runCli(["check", "--json", "--loss-scale", "0.5", "--vary", "training.batch=4,64", "specs/deep-relu-he.yaml"]);
+    expect(good.stderr).toBe("");
+    const rows = JSON.parse(good.stdout) as { variant: string; result: { lossScale: { value: number; origin: string } } }[];
+    expect(rows.map((row) => [row.variant, row.result.lossScale])).toEqual([
+      ["training.batch=4", { value: 0.5, origin: "option" }],
+      ["training.batch=64", { value: 0.5, origin: "option" }],
+    ]);
+  });
 });
