@@ -228,7 +228,11 @@ export function checkOptimizer(
   const updateFormat = master ?? weightFormat;
   // compensated summation into the format that receives the update: about twice its precision (Kahan 1965)
   const compensatedFormat = { precision: 2 * updateFormat.precision, emin: updateFormat.emin };
-  const stateFlushBound = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal / 2;
+  // the hazards' bound for figures, epsilon and verdicts alike: half the smallest subnormal (IEEE 754-2019 §4.3.1),
+  // or the smallest normal where subnormals flush, as bfloat16's are taken to by default (SCIENCE.md §1.2)
+  const stateLimits = limitsFor(plan, plan.optimizerStates);
+  const stateFlushBound = stateLimits.flushBound;
+  const flushStates = stateLimits.smallest === stateFormat.minNormal;
   const stateOverflow = stateFormat.overflowThreshold;
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
 
@@ -249,12 +253,10 @@ export function checkOptimizer(
 
   const epsilon = adamLike
     ? (() => {
-        const stored = roundTo(stateFormat, optimizer.epsilon, { flushSubnormals: plan.flushSubnormals });
+        const stored = roundTo(stateFormat, optimizer.epsilon, { flushSubnormals: flushStates });
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
-  // the states' flush bound as the hazards take it (bfloat16 modelled flush-to-zero, unlike stateFlushBound above)
-  const flushBound = limitsFor(plan, plan.optimizerStates).flushBound;
   // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
   // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
   // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site
@@ -263,10 +265,10 @@ export function checkOptimizer(
     if (hasOwnSite(prediction, "optimizer-constant")) {
       const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
       for (let i = 0; i < gradients.length; i++) {
-        zeros.perStep = Math.max(zeros.perStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, flushBound, optimizer.betas[1]));
+        zeros.perStep = Math.max(zeros.perStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, stateFlushBound, optimizer.betas[1]));
       }
     } else {
-      const network = networkZeroSecondMoments(weightGradientsOf(prediction), flushBound, optimizer.betas[1]);
+      const network = networkZeroSecondMoments(weightGradientsOf(prediction), stateFlushBound, optimizer.betas[1]);
       zeros = { perStep: network.perStep, top: network.top };
     }
   }
@@ -281,18 +283,18 @@ export function checkOptimizer(
     let inBinary32 = 0;
     for (let i = 0; i < site.gradients.length; i++) {
       const gradient = site.gradients[i] as MagnitudeProfile;
-      share = Math.max(share, flushedSecondMoments(gradient, flushBound, optimizer.betas[1]).share);
+      share = Math.max(share, flushedSecondMoments(gradient, stateFlushBound, optimizer.betas[1]).share);
       inBinary32 = Math.max(inBinary32, flushedSecondMoments(gradient, binary32Bound, optimizer.betas[1]).share);
     }
     secondMoments = {
       layer: site.layer,
       share,
-      inBinary32: binary32Bound < flushBound ? inBinary32 : null,
+      inBinary32: binary32Bound < stateFlushBound ? inBinary32 : null,
       verdict: flushedSecondMomentsVerdict(share, thresholds).verdict,
     };
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
+  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
 }
 
 // Zero second moments per step where a vanishing epsilon is judged, and the weight gradient giving most ("" when
@@ -403,6 +405,8 @@ function summarise(
   formats: {
     weightFormat: Format;
     stateFormat: Format;
+    /** the smallest value the state format keeps: its smallest subnormal, or its smallest normal where subnormals flush */
+    stateSmallest: number;
     updateFormat: Format;
     binary32: Format;
     compensatedFormat: Pick<Format, "precision" | "emin">;
@@ -537,9 +541,7 @@ function summarise(
         ? `about ${zeros.perStep.toPrecision(3)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
     tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}`);
-    // the smallest value the state format keeps: its smallest subnormal, or its smallest normal when subnormals flush
-    const kept = plan.flushSubnormals ? stateFormat.minNormal : stateFormat.minSubnormal;
-    const raiseTo = `raise epsilon to at least ${roundedUp(kept)}`;
+    const raiseTo = `raise epsilon to at least ${roundedUp(formats.stateSmallest)}`;
     remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }
   return {

@@ -218,3 +218,42 @@ describe("checkOptimizer: zero second moments per step are counted across every 
     expect(checkOptimizer(adam, plan("binary16"), net(0.0002)).verdict).toBe("at-risk");
   });
 });
+
+describe("checkOptimizer: bfloat16 states, figures and verdict on one bound", () => {
+  // bfloat16 has binary32's exponent range (IEEE 754-2019 Table 3.5: emin −126) with 7 fraction bits, so its
+  // smallest normal is 2^-126 and its smallest subnormal 2^-133; its subnormals are taken to flush (SCIENCE.md §1.2)
+  const beta2 = adam.betas[1];
+
+  it("a first-step second moment between 2^-134 and 2^-126 is counted flushed in the figures and in the verdict", () => {
+    // (1 − β2)·g² = 2^-130: a subnormal bfloat16 would keep, flushed where subnormals flush
+    const g = Math.sqrt(2 ** -130 / (1 - beta2));
+    const result = checkOptimizer(adam, plan("bfloat16"), prediction(g));
+    const figures = result.tensors[0]!.secondMomentFlushed;
+    expect(figures.firstStep).toBe(1);
+    // settled, v ≈ g² = 2^-130/(1 − β2) ≈ 2^-120 stays normal
+    expect(figures.settled).toBe(0);
+    // every second moment flushed at the first step is past flushedFails (10%): the verdict and its sentence agree
+    expect(result.verdict).toBe("fails");
+    expect(result.reasons.join(" ")).toMatch(/100% of the second moments of dense-0 flush to zero in bfloat16 at the first step/);
+  });
+
+  it("just above 2^-126 neither the figures nor the verdict count it", () => {
+    const g = Math.sqrt((2 ** -126 * 1.01) / (1 - beta2));
+    const result = checkOptimizer(adam, plan("bfloat16"), prediction(g));
+    expect(result.tensors[0]!.secondMomentFlushed.firstStep).toBe(0);
+    expect(result.reasons.join(" ")).not.toMatch(/second moments/);
+  });
+
+  it("a first moment (1 − β1)·g below 2^-126 is counted flushed", () => {
+    // (1 − 0.9)·g = 2^-130
+    const result = checkOptimizer(adam, plan("bfloat16"), prediction(2 ** -130 / (1 - adam.betas[0])));
+    expect(result.tensors[0]!.firstMomentFlushed).toBe(1);
+  });
+
+  it("an epsilon among bfloat16's subnormals vanishes, and the remedy names the smallest normal", () => {
+    // 2^-130 lies between the smallest subnormal 2^-133 and the smallest normal 2^-126 ≈ 1.1754943508222875e-38
+    const result = checkOptimizer({ ...adam, epsilon: 2 ** -130 }, plan("bfloat16"), prediction(1e-2));
+    expect(result.epsilon).toEqual({ value: 2 ** -130, stored: 0, vanishes: true });
+    expect(result.remedies.join(" ")).toMatch(/raise epsilon to at least 1\.18e-38/);
+  });
+});
