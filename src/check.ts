@@ -48,6 +48,8 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  * Judge a network spec against its precision plan (or the formats given), answer the loss scale and check the
  * optimizer. When the plan gives no loss scale and its gradients are held in a reduced format, gradients are
  * judged at the recommended scale (the window's pick), and the result says so.
+ * With `options.formats`, the loss-scale answer and the optimizer are still worked out for the plan, but a finding of
+ * theirs counts in `verdict` only when its format is one of the plan's formats judged; its sentence says so otherwise.
  * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
  * network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
@@ -74,13 +76,21 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
     .map((h) => h.kind)
     .filter((kind): kind is OptimizerStateHazard => kind === "optimizer-constant" || kind === "optimizer-second-moment");
+  // the optimizer and the loss scale are answered for the plan, but count only in the plan's formats that were judged
+  // (all of them unless `formats` leaves some out), as the formats' verdicts do
+  const counted = judged.formats.filter((f) => f.planned).map((f) => f.format);
   // the thresholds the judge used, the caller's overrides included: second moments get their hazard's severity
-  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards, judged.thresholds);
+  const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards, judged.thresholds, counted);
   // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
-  const scaleVerdict: Verdict =
+  let scaleVerdict: Verdict =
     answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";
+  let told = answer;
+  if (answer !== null && scaleVerdict !== "fits" && !counted.includes(answer.format)) {
+    told = { ...answer, sentences: [...answer.sentences, `Not counted in the verdict: ${answer.format} is not among the formats judged.`] };
+    scaleVerdict = "fits";
+  }
   const verdict = [judged.verdict, optimizer.verdict, scaleVerdict].reduce((a, b) => (SEVERITY[b] > SEVERITY[a] ? b : a));
-  return { ...judged, verdict, lossScaleAnswer: answer, optimizer };
+  return { ...judged, verdict, lossScaleAnswer: told, optimizer };
 }
 
 /**

@@ -77,8 +77,9 @@ export interface OptimizerCheck {
   tensors: WeightOptimizerCheck[];
   /** the worst lost share under the plan, where it happens */
   worst: { weight: string; at: SchedulePoint; lostShare: number } | null;
+  /** the worst of the findings in the formats judged (every format unless the caller names them) */
   verdict: OptimizerVerdict;
-  /** one sentence each, worst first */
+  /** one sentence each, worst first; a finding in a format not judged says it does not count */
   reasons: string[];
   /** the states' findings told by the operation hazards of these kinds instead of in `reasons` (they still count
    * in `verdict`, and their remedies stay in `remedies`) */
@@ -211,6 +212,8 @@ function updateLoss(
  * `check` does); a state finding of those kinds is then left out of `reasons` and listed in `reportedAsHazards`.
  * `thresholds`: the flushed shares that grade second moments, the caller's overrides included (as the judge takes
  * them), so the optimizer and the `optimizer-second-moment` hazard give one severity.
+ * `judged`: the formats whose findings count in `verdict` (as `check` passes the planned formats it judged); a
+ * finding in another format is still told, and its reason says it does not count. Default: every format.
  * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
  */
 export function checkOptimizer(
@@ -220,6 +223,7 @@ export function checkOptimizer(
   plannedSteps?: number,
   hazards: readonly OptimizerStateHazard[] = [],
   thresholds: Pick<RiskThresholds, "flushedAtRisk" | "flushedFails"> = DEFAULT_THRESHOLDS,
+  judged?: readonly FormatName[],
 ): OptimizerCheck {
   const weightFormat = getFormat(plan.weights);
   const stateFormat = getFormat(plan.optimizerStates);
@@ -294,7 +298,7 @@ export function checkOptimizer(
     };
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards);
+  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards, judged);
 }
 
 // Zero second moments per step where a vanishing epsilon is judged, and the weight gradient giving most ("" when
@@ -413,6 +417,7 @@ function summarise(
   },
   plannedSteps: number | undefined,
   hazards: readonly OptimizerStateHazard[],
+  judged: readonly FormatName[] | undefined,
 ): OptimizerCheck {
   const { worst, worstPeak, decay } = worstFindings(tensors);
   const reasons: string[] = [];
@@ -424,8 +429,12 @@ function summarise(
     else reasons.push(reason);
   };
   let verdict: OptimizerVerdict = "fits";
-  const raise = (v: OptimizerVerdict) => {
+  // a finding in a format left out of the judged ones is told but not counted, as the formats' verdicts leave it out;
+  // returns the sentence that says so
+  const raise = (v: OptimizerVerdict, format: Format): string => {
+    if (judged !== undefined && !judged.includes(format.name)) return ` Not counted in the verdict: ${format.name} is not among the formats judged.`;
     if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
+    return "";
   };
   const pct = (x: number) => `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
   const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
@@ -501,9 +510,9 @@ function summarise(
   // the updates of the worst tensor at its worst point, when more than the tolerated share is lost
   let lostUpdate: UpdateLoss | null = null;
   if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
-    raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk");
+    const uncounted = raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk", updateFormat);
     reasons.push(
-      `${pct(worst.lostShare)} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.`,
+      `${pct(worst.lostShare)} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
     );
     const t = tensors.find((x) => x.weight === worst!.weight)!;
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
@@ -511,19 +520,19 @@ function summarise(
   const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
   const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
   if (decayFinding) {
-    raise("at-risk");
+    const uncounted = raise("at-risk", updateFormat);
     reasons.push(
-      `weight decay steps (learning rate × decay = ${decayRatio.toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.`,
+      `weight decay steps (learning rate × decay = ${decayRatio.toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.${uncounted}`,
     );
   }
   if (lostUpdate !== null || decayFinding) remedies.push(...updateRemedies(lostUpdate, worst?.weight ?? "", decayFinding ? { ratio: decayRatio, lost: decay } : null));
 
   if (secondMoments !== null && secondMoments.verdict !== "fits") {
     const { layer, share, inBinary32 } = secondMoments;
-    raise(secondMoments.verdict);
+    const uncounted = raise(secondMoments.verdict, stateFormat);
     tell(
       "optimizer-second-moment",
-      `${pct(share)} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).`,
+      `${pct(share)} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).${uncounted}`,
     );
     // binary32 states only where they flush less, on the same gradients
     if (inBinary32 !== null && inBinary32 < share) {
@@ -535,12 +544,12 @@ function summarise(
     }
   }
   if (epsilon?.vanishes) {
-    raise(vanishedEpsilonVerdict(zeros.perStep));
+    const uncounted = raise(vanishedEpsilonVerdict(zeros.perStep), stateFormat);
     const where =
       zeros.perStep >= 1
         ? `about ${zeros.perStep.toPrecision(3)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
-    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}`);
+    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
     const raiseTo = `raise epsilon to at least ${roundedUp(formats.stateSmallest)}`;
     remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }

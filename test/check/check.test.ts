@@ -1,9 +1,9 @@
-import { readFileSync } from "node:fs";
+import { readdirSync, readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check, needsLossScale } from "../../src/check.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
-import type { CheckResult } from "../../src/risk/index.js";
+import { planFormats, type CheckResult } from "../../src/risk/index.js";
 import { zeroSecondMoments } from "../../src/risk/second-moments.js";
 
 const HAZARDS = "test/fixtures/specs/hazards";
@@ -185,6 +185,57 @@ describe("the recommended loss scale (Micikevicius et al. 2018 §3.2: choose S s
     expect(needsLossScale({ ...plan, gradients: "bfloat16" })).toBe(false);
     expect(needsLossScale({ ...plan, gradients: "e5m2", scaling: "tensor" })).toBe(false);
     expect(needsLossScale({ ...plan, gradients: "e5m2", scaling: "none" })).toBe(true);
+  });
+});
+
+describe("formats given: the optimizer and the loss scale count only in the plan's formats that are judged", () => {
+  const SEVERITY = { fits: 0, "at-risk": 1, fails: 2 } as const;
+  const worstOf = (r: CheckResult) => r.formats.reduce((w, f) => (SEVERITY[f.verdict] > SEVERITY[w] ? f.verdict : w), "fits" as CheckResult["verdict"]);
+  const NOT_COUNTED = /Not counted in the verdict: binary16 is not among the formats judged\.$/;
+
+  it("binary16 states left out by the formats: the optimizer's findings are told, not counted", () => {
+    const spec = load(`${HAZARDS}/adam-epsilon-binary16.yaml`);
+    // epsilon 1e-8 lies below binary16's flush bound 2^-25 and rounds to 0 (IEEE 754-2019 binary16; SCIENCE.md §3.3)
+    const planned = check(spec);
+    expect(planned.optimizer.epsilon?.stored).toBe(0);
+    expect(planned.optimizer.verdict).toBe("fails");
+    const brain = check(spec, { formats: ["bfloat16"] });
+    // the plan's optimizer is still answered, in binary16 ...
+    expect(brain.optimizer.stateFormat).toBe("binary16");
+    expect(brain.optimizer.epsilon?.stored).toBe(0);
+    expect(brain.optimizer.reasons.length).toBe(2);
+    for (const reason of brain.optimizer.reasons) expect(reason).toMatch(NOT_COUNTED);
+    // ... but the verdicts are those of the formats judged
+    expect(brain.optimizer.verdict).toBe("fits");
+    expect(brain.verdict).toBe(worstOf(brain));
+    // with binary16 among the formats judged it counts again
+    const both = check(spec, { formats: ["bfloat16", "binary16"] });
+    expect(both.optimizer.verdict).toBe("fails");
+    expect(both.verdict).toBe("fails");
+  });
+
+  it("binary16 gradients left out by the formats: an empty loss-scale window is told, not counted", () => {
+    const spec = load("specs/residual-mlp-unscaled.yaml");
+    const planned = check(spec);
+    expect(planned.lossScaleAnswer?.window.empty).toBe(true);
+    expect(planned.verdict).toBe("fails");
+    const single = check(spec, { formats: ["binary32"] });
+    expect(single.lossScaleAnswer?.window.empty).toBe(true);
+    expect(single.lossScaleAnswer?.sentences.at(-1)).toMatch(NOT_COUNTED);
+    expect(single.verdict).toBe(worstOf(single));
+    expect(check(spec, { formats: ["binary32", "binary16"] }).verdict).toBe("fails");
+  });
+
+  it("on every example, formats the plan does not use give the verdict of their own findings", () => {
+    const examples = readdirSync("specs").filter((name) => name.endsWith(".yaml"));
+    expect(examples.length).toBeGreaterThan(3);
+    for (const name of examples) {
+      const spec = load(`specs/${name}`);
+      for (const format of (["bfloat16", "tf32"] as const).filter((f) => !planFormats(spec.precision).includes(f))) {
+        const result = check(spec, { formats: [format] });
+        expect(result.verdict, `${name} in ${format}`).toBe(worstOf(result));
+      }
+    }
   });
 });
 

@@ -96,6 +96,19 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     );
   });
 
+  it("--format leaving the plan's binary16 states out: their findings are shown, the exit code follows the formats judged", () => {
+    // epsilon 1e-8 rounds to 0 in binary16 (below its flush bound 2^-25; IEEE 754-2019 binary16, SCIENCE.md §3.3)
+    const fixture = "test/fixtures/specs/hazards/adam-epsilon-binary16.yaml";
+    const planned = runCli(["check", fixture]);
+    expect(planned.status).toBe(1);
+    const brain = runCli(["check", "--format", "bf16", fixture]);
+    expect(brain.stderr).toBe("");
+    expect(brain.stdout).toMatch(/Verdict fits/);
+    const text = brain.stdout.replace(/\s+/g, " ");
+    expect(text).toMatch(/epsilon 1e-8 rounds to 0 in binary16; .*? divides by zero there\. Not counted in the verdict: binary16 is not among the formats judged\./);
+    expect(brain.status).toBe(0);
+  });
+
   it("an unknown plan names the spec's plans", () => {
     const run = runCli(["check", "--plan", "nope", "specs/deep-relu-he.yaml"]);
     expect(run.status).toBe(2);

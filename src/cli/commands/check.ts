@@ -8,7 +8,11 @@ import { varyOption } from "./batch.js";
 export function addJudgeOptions(command: Command): Command {
   return command
     .addOption(
-      new Option("--format <formats>", `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")})`).argParser(
+      new Option(
+        "--format <formats>",
+        `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")}); ` +
+          "the loss scale and optimizer are still answered for the plan, but count in the verdict only in the plan's formats judged",
+      ).argParser(
         (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
       ),
     )
