@@ -101,7 +101,8 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   if (window.empty || options.simulate === "always") {
     const ids = new Set(curves.map((c) => c.id));
     gradients = prediction.tensors.filter((t) => ids.has(t.id));
-    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, { ...DEFAULT_DYNAMIC_SCALE, ...options.dynamic }.lowestScale), {
+    // the simulation fills in the other defaults of the settings itself
+    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale), {
       steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
       seed: options.seed ?? 1,
       horizonPoints: 8,
@@ -181,7 +182,8 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
 
 /**
  * Overflow probability per step over all gradient tensors as they drift from their start to their end profiles: the
- * model {@link lossScaleAnswer} simulates a dynamic scale with (exported for tests of its bounds).
+ * model {@link lossScaleAnswer} simulates a dynamic scale with (exported for tests of its bounds). `lowestScale` is the
+ * simulation's lowest scale: it never asks about a smaller one (it clamps every cut to it).
  */
 export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions, lowestScale = 1): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
@@ -229,7 +231,7 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
         // the flushed share falls as the scale grows: a tensor within the tolerance at a smaller scale is within it here
         if (known.tolerated[i]! <= scale) continue;
         const p = point.profile(i);
-        if (known.anchored[i] === 0 && lowestScale <= scale) {
+        if (known.anchored[i] === 0) {
           // once per tensor and point: its cheap bound at the lowest scale the simulation takes, which then serves every
           // scale (widened for the rounding of evaluations at two thresholds)
           known.anchored[i] = 1;
