@@ -54,16 +54,23 @@ function positiveInteger(name: string, value: number): number {
 }
 
 /**
+ * The workers a pool starts for `tasks` tasks: `workers` (default {@link defaultWorkers}), never more than the tasks.
+ * Throws RangeError when `workers` is not a positive integer.
+ */
+export function poolWorkers(workers: number | undefined, tasks: number): number {
+  return Math.min(positiveInteger("workers", workers ?? defaultWorkers()), tasks);
+}
+
+/**
  * Run `tasks` on a pool of workers started from `workerUrl`; outcomes come back in input order.
  * Never rejects because of a task or a worker; it rejects only for a bad argument (RangeError).
  */
 export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options: PoolOptions = {}): Promise<TaskOutcome<R>[]> {
-  const size = positiveInteger("workers", options.workers ?? defaultWorkers());
+  const workers = poolWorkers(options.workers, tasks.length);
   const inFlight = positiveInteger("inFlight", options.inFlight ?? 2);
   const most = positiveInteger("chunk", options.chunk ?? 8);
   const outcomes: (TaskOutcome<R> | undefined)[] = new Array(tasks.length);
   if (tasks.length === 0) return [];
-  const workers = Math.min(size, tasks.length);
 
   let next = 0; // the next task not yet sent
   const requeued: number[] = []; // tasks sent to a worker that died before answering them

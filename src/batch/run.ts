@@ -2,7 +2,7 @@
  * A whole batch: expanded inputs × variants → tasks → the worker pool → rows in input order.
  */
 import type { BatchInput } from "./paths.js";
-import { defaultWorkers, runPool, type TaskOutcome } from "./pool.js";
+import { poolWorkers, runPool, type TaskOutcome } from "./pool.js";
 import { tuneTieringForBatch } from "./tiering.js";
 import type { SpecTask, TaskResult } from "./evaluate.js";
 import type { BatchRow } from "./types.js";
@@ -65,7 +65,7 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
   let done = plan.length - tasks.length;
   if (done > 0) options.onRow?.(done, plan.length);
   // before the workers start: their isolates take V8's flags as they stand
-  const untune = tasks.length > 0 ? tuneTieringForBatch(Math.min(options.workers ?? defaultWorkers(), tasks.length)) : () => {};
+  const untune = tasks.length > 0 ? tuneTieringForBatch(poolWorkers(options.workers, tasks.length)) : () => {};
   let outcomes: TaskOutcome<TaskResult>[];
   try {
     outcomes = await runPool<SpecTask, TaskResult>(options.workerUrl ?? DEFAULT_WORKER_URL, tasks, {

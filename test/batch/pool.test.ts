@@ -1,5 +1,6 @@
 import { describe, expect, test } from "vitest";
-import { runPool, type TaskOutcome } from "../../src/batch/pool.js";
+import { availableParallelism } from "node:os";
+import { poolWorkers, runPool, type TaskOutcome } from "../../src/batch/pool.js";
 
 // The pool starts real worker threads; the fixture imports serveTasks from dist/ (npm run build first).
 const WORKER = new URL("./fixtures/test-worker.mjs", import.meta.url);
@@ -91,5 +92,20 @@ describe("runPool", () => {
     await expect(runPool(WORKER, [1], { workers: 0 })).rejects.toThrow(RangeError);
     await expect(runPool(WORKER, [1], { workers: 1.5 })).rejects.toThrow(RangeError);
     await expect(runPool(WORKER, [1], { chunk: 0 })).rejects.toThrow(RangeError);
+  });
+});
+
+describe("poolWorkers: the one count of a pool's workers (runPool starts them, runBatch tunes V8 for them)", () => {
+  test("the count asked for, by default one per core Node says the process may use, never more than the tasks", () => {
+    // os.availableParallelism() is Node's count of usable cores (Node.js documentation, os module)
+    expect(poolWorkers(undefined, 1_000_000)).toBe(Math.max(1, availableParallelism()));
+    expect(poolWorkers(4, 10)).toBe(4);
+    expect(poolWorkers(4, 3)).toBe(3);
+    expect(poolWorkers(undefined, 1)).toBe(1);
+  });
+
+  test("a count that is not a positive integer is refused", () => {
+    expect(() => poolWorkers(0, 5)).toThrow(/workers must be a positive integer: 0/);
+    expect(() => poolWorkers(2.5, 5)).toThrow(RangeError);
   });
 });
