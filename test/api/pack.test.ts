@@ -1,4 +1,5 @@
 import { execFileSync, spawnSync } from "node:child_process";
+import { createHash } from "node:crypto";
 import { cpSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -8,8 +9,11 @@ import { check } from "../../src/check.js";
 import { loadSpec } from "../../src/spec/index.js";
 
 // The package as users get it: `npm pack` (after the build), installed by name into a fresh project,
-// then the README's script example (examples/at-risk.mjs) run against it. npm installs the
-// dependencies from its cache (--offline), so the test needs no network once they were installed once.
+// then the README's script example (examples/at-risk.mjs) run against it. The fresh project's lockfile
+// pins the tarball and, for its dependencies, this project's own lockfile entries (the versions, addresses
+// and checksums `npm ci` installed here), so `npm ci --offline` installs from the tarballs that install left
+// in npm's cache: no network, and no registry listings, which `npm ci` does not fetch (a lockfile-less
+// `npm install --offline` needs them and failed on a machine whose cache only `npm ci` had filled).
 let dir: string;
 let project: string;
 
@@ -19,13 +23,33 @@ beforeAll(() => {
   const tarball = readdirSync(dir).find((name) => name.endsWith(".tgz"))!;
   project = join(dir, "project");
   cpSync(join(ROOT, "examples"), join(project, "examples"), { recursive: true });
-  writeFileSync(join(project, "package.json"), JSON.stringify({ name: "pack-check", private: true, type: "module" }));
-  execFileSync("npm", ["install", "--offline", "--no-audit", "--no-fund", "--ignore-scripts", "--loglevel=error", join(dir, tarball)], {
-    cwd: project,
-    stdio: "pipe",
-  });
+  const dependency = `file:../${tarball}`;
+  writeFileSync(join(project, "package.json"), JSON.stringify({ name: "pack-check", private: true, type: "module", dependencies: { headroom: dependency } }));
+  writeFileSync(join(project, "package-lock.json"), JSON.stringify(packLockfile(join(dir, tarball), dependency)));
+  execFileSync("npm", ["ci", "--offline", "--no-audit", "--no-fund", "--ignore-scripts", "--loglevel=error"], { cwd: project, stdio: "pipe" });
 }, 240_000);
 afterAll(() => rmSync(dir, { recursive: true, force: true }));
+
+/** A lockfile (version 3) for a project that depends on the packed tarball alone. */
+function packLockfile(tarballPath: string, dependency: string): object {
+  const own = JSON.parse(readFileSync(join(ROOT, "package.json"), "utf8"));
+  const lock = JSON.parse(readFileSync(join(ROOT, "package-lock.json"), "utf8")) as { packages: Record<string, { dev?: boolean; devOptional?: boolean }> };
+  const packages: Record<string, object> = {
+    "": { name: "pack-check", dependencies: { headroom: dependency } },
+    "node_modules/headroom": {
+      version: own.version,
+      resolved: dependency,
+      integrity: `sha512-${createHash("sha512").update(readFileSync(tarballPath)).digest("base64")}`,
+      license: own.license,
+      dependencies: own.dependencies,
+      bin: own.bin,
+      engines: own.engines,
+    },
+  };
+  // the runtime dependencies (and theirs) as this project's `npm ci` installed them; development-only ones stay out
+  for (const [path, entry] of Object.entries(lock.packages)) if (path !== "" && !entry.dev && !entry.devOptional) packages[path] = entry;
+  return { name: "pack-check", lockfileVersion: 3, requires: true, packages };
+}
 
 describe("the packed package, installed by name", () => {
   test("the README's example prints exactly the specs at risk", async () => {
