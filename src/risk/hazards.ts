@@ -2,6 +2,7 @@
  * Operation hazards: places where an operation, not a stored tensor, overflows or loses values. Each site
  * is judged against the formats of the plan entries that hold its result.
  */
+import { FORMATS, roundTo } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
@@ -472,8 +473,10 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
   const limits = context.optimizerStates;
   const epsilon = site.constant;
   if (epsilon === undefined) return;
-  // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step
-  if (epsilon > limits.flushBound) {
+  // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step. Kept or
+  // not by rounding ε itself (IEEE 754-2019 §4.3.1; flushing after rounding, SCIENCE.md §1.2), as the optimizer
+  // check does: the smallest normal is kept where subnormals flush, though flushBound (for profiles) equals it
+  if (roundTo(FORMATS[limits.format], epsilon, { flushSubnormals: limits.smallest === limits.minNormal }) !== 0) {
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
       "fits", 0, EPSILON_KEPT, epsilon, false);
   } else {

@@ -174,6 +174,24 @@ describe("optimizer constants", () => {
     expect(hazardVerdict(evaluateHazard(adam(gradient), context({ optimizerStates: BFLOAT16_FTZ })))).toBe("fits");
     expect(hazardVerdict(evaluateHazard(adam(gradient), context()))).toBe("fits");
   });
+
+  // Whether ε survives is decided by rounding it (IEEE 754-2019 §4.3.1, ties to even), at the exact boundaries:
+  // binary16's half smallest subnormal 2^-25 ties to 0 and anything above it rounds up to 2^-24 (IEEE 754-2019
+  // Table 3.5: emin −14, p = 11); bfloat16 with flushed subnormals keeps its smallest normal 2^-126 (emin −126)
+  // and loses everything below it
+  const epsilonAt = (constant: number, states: HazardContext["optimizerStates"]) =>
+    evaluateHazard(site({ kind: "optimizer-constant", constant, input: profile({ rms: 1e-4, elements: 1e5 }) }), context({ optimizerStates: states }));
+  const kept = (check: ReturnType<typeof evaluateHazard>) => check.findings.length === 0 && hazardVerdict(check) === "fits";
+  it.each([
+    { at: "binary16, 2^-25 (a tie, to even: 0)", epsilon: 2 ** -25, states: BINARY16, expected: false },
+    { at: "binary16, just above 2^-25 (rounds to 2^-24)", epsilon: 2 ** -25 * (1 + 2 ** -20), states: BINARY16, expected: true },
+    { at: "bfloat16 flushing subnormals, 2^-126 (its smallest normal)", epsilon: 2 ** -126, states: BFLOAT16_FTZ, expected: true },
+    // within half a subnormal step (2^-134) below 2^-126 rounding gives 2^-126 itself, which is kept
+    { at: "bfloat16 flushing subnormals, 2^-126·(1 − 2^-20) (rounds up to 2^-126)", epsilon: 2 ** -126 * (1 - 2 ** -20), states: BFLOAT16_FTZ, expected: true },
+    { at: "bfloat16 flushing subnormals, 2^-126 − 2^-133 (its largest subnormal)", epsilon: 2 ** -126 - 2 ** -133, states: BFLOAT16_FTZ, expected: false },
+  ])("ε at $at: kept $expected, as rounding decides", ({ epsilon, states, expected }) => {
+    expect(kept(epsilonAt(epsilon, states))).toBe(expected);
+  });
 });
 
 describe("the start and the end of the horizon", () => {
