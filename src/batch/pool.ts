@@ -80,15 +80,19 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
 
   return new Promise<TaskOutcome<R>[]>((resolve) => {
     const live = new Set<Worker>();
+    // Every worker is gone before the pool resolves: the caller may then change V8's process-wide flags
+    // (src/batch/tiering.ts), which V8 does not support while another isolate runs or compiles (node:v8
+    // setFlagsFromString: "behavior is undefined" once the VM has started; a pool run crashed that way once)
+    const exits: Promise<number>[] = [];
     const settle = (index: number, outcome: TaskOutcome<R>): void => {
       if (outcomes[index] !== undefined) return;
       outcomes[index] = outcome;
       settled += 1;
       options.onSettled?.(index, outcome);
       if (settled === tasks.length) {
-        for (const worker of live) void worker.terminate();
+        for (const worker of live) exits.push(worker.terminate());
         live.clear();
-        resolve(outcomes as TaskOutcome<R>[]);
+        void Promise.allSettled(exits).then(() => resolve(outcomes as TaskOutcome<R>[]));
       }
     };
     const takeTask = (): number | undefined => {
@@ -121,7 +125,7 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
         if (gone) return;
         gone = true;
         live.delete(worker);
-        void worker.terminate();
+        exits.push(worker.terminate());
         const culprit = Atomics.load(running, 0) - 1;
         requeued.unshift(...pending.flat().filter((index) => index !== culprit));
         pending.length = 0;
