@@ -4,10 +4,10 @@
  */
 import { buildGraph, type Graph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
-import { FORMATS } from "./formats/index.js";
+import { FORMATS, isFormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
-import { judgePrediction, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { judgePrediction, planFor, planFormats, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
 import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
@@ -24,12 +24,17 @@ export class CheckInputError extends RangeError {
 }
 
 /**
- * A check with the decisions that follow from it: the loss-scale answer for the plan's gradient format and the
- * optimizer in the planned formats. `verdict` folds both in.
+ * A check with the decisions that follow from it: the loss-scale answer for the gradient format of the formats judged
+ * and the optimizer in the planned formats. `verdict` folds both in.
  */
 export interface CheckAnswer extends CheckResult {
-  /** the loss-scale window, pick and remedies; null when gradients are held in binary32 or wider */
+  /**
+   * the loss-scale window, pick and remedies for the gradients of the formats judged (the first such gradient format,
+   * in the order of `formats`); null when none needs a scale (held in bfloat16, binary32, or 8-bit with scale factors)
+   */
   lossScaleAnswer: LossScaleAnswer | null;
+  /** the answers for further gradient formats, when the formats judged hold gradients in several that need a scale */
+  moreLossScaleAnswers?: LossScaleAnswer[];
   /** the optimizer's states, epsilon and update swamping under the plan */
   optimizer: OptimizerCheck;
 }
@@ -46,10 +51,12 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
 
 /**
  * Judge a network spec against its precision plan (or the formats given), answer the loss scale and check the
- * optimizer. When the plan gives no loss scale and its gradients are held in a reduced format, gradients are
- * judged at the recommended scale (the window's pick), and the result says so.
- * With `options.formats`, the loss-scale answer and the optimizer are still worked out for the plan, but a finding of
- * theirs counts in `verdict` only when its format is one of the plan's formats judged; its sentence says so otherwise.
+ * optimizer. When no loss scale is given (by the plan or the options), each judged format whose plan as judged
+ * (`planFor`) holds gradients in a format that needs one is judged at the recommended scale for those gradients (the
+ * pick of the window searched for them, once per gradient format), the others unscaled, and the result says which.
+ * The loss-scale answer is for the gradients of the formats judged; its finding counts in `verdict` when its format is
+ * one of them. The optimizer is worked out for the plan, and its findings count only in the plan's formats judged;
+ * a finding not counted says so in its sentence.
  * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
  * network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
@@ -60,17 +67,11 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   if (!built.ok) throw new CheckInputError(built.issues);
   const planned = { ...spec, precision: plan };
   const prediction = measuredPrediction(built.graph, planned, measurements);
-  const answer = needsLossScale(plan)
-    ? lossScaleAnswer(prediction, plan, {
-        steps: spec.training.horizon.steps,
-        seed: options.seed ?? 1,
-        simulate: options.simulateDynamicScale ? "always" : "when-empty",
-      })
-    : null;
-  // with no scale given, gradients are judged at the window's pick even when 1 also lies inside it: a larger scale
+  const answers = lossScaleAnswers(prediction, plan, options, spec.training.horizon.steps);
+  // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin
-  const window = options.lossScale === undefined && plan.lossScale === undefined && answer !== null ? windowSummary(answer) : undefined;
-  const judged = judgePrediction(planned, prediction, window === undefined ? options : { ...options, lossScaleWindow: window });
+  const given = options.lossScale !== undefined || plan.lossScale !== undefined;
+  const judged = judgePrediction(planned, prediction, given || answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
@@ -81,16 +82,48 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   const counted = judged.formats.filter((f) => f.planned).map((f) => f.format);
   // the thresholds the judge used, the caller's overrides included: second moments get their hazard's severity
   const optimizer = checkOptimizer(spec.training.optimizer, plan, prediction, spec.training.horizon.steps, stateHazards, judged.thresholds, counted);
-  // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
-  let scaleVerdict: Verdict =
-    answer === null || !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";
-  let told = answer;
-  if (answer !== null && scaleVerdict !== "fits" && !counted.includes(answer.format)) {
-    told = { ...answer, sentences: [...answer.sentences, `Not counted in the verdict: ${answer.format} is not among the formats judged.`] };
-    scaleVerdict = "fits";
+  // an answer counts when its gradient format is judged (a planned format holding no gradients, such as binary32 for
+  // the states, is judged at the plan's scale, but its answer is not about it)
+  const judgedNames = judged.formats.map((f) => f.format);
+  let verdict = [judged.verdict, optimizer.verdict].reduce((a, b) => (SEVERITY[b] > SEVERITY[a] ? b : a));
+  const told: LossScaleAnswer[] = [];
+  for (const answer of answers) {
+    // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
+    const scaleVerdict: Verdict = !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";
+    if (scaleVerdict !== "fits" && !judgedNames.includes(answer.format)) {
+      told.push({ ...answer, sentences: [...answer.sentences, `Not counted in the verdict: ${answer.format} is not among the formats judged.`] });
+      continue;
+    }
+    told.push(answer);
+    if (SEVERITY[scaleVerdict] > SEVERITY[verdict]) verdict = scaleVerdict;
   }
-  const verdict = [judged.verdict, optimizer.verdict, scaleVerdict].reduce((a, b) => (SEVERITY[b] > SEVERITY[a] ? b : a));
-  return { ...judged, verdict, lossScaleAnswer: told, optimizer };
+  const answer = told[0] ?? null;
+  return told.length > 1
+    ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), optimizer }
+    : { ...judged, verdict, lossScaleAnswer: answer, optimizer };
+}
+
+/**
+ * The loss-scale answers for the formats judged: one per gradient format that needs a scale under a judged format's
+ * plan (`planFor`), in the order of the formats. The plan's own gradients are answered under the plan itself.
+ */
+function lossScaleAnswers(prediction: Prediction, plan: PrecisionPlan, options: CheckAnswerOptions, steps: number): LossScaleAnswer[] {
+  const formats = options.formats !== undefined && options.formats.length > 0 ? options.formats : planFormats(plan);
+  const answers: LossScaleAnswer[] = [];
+  for (const format of formats) {
+    // an unknown name is the judgement's to report (RangeError, with the accepted names)
+    if (!isFormatName(format)) continue;
+    const evaluated = planFor(plan, format);
+    if (!needsLossScale(evaluated) || answers.some((a) => a.format === evaluated.gradients)) continue;
+    answers.push(
+      lossScaleAnswer(prediction, evaluated.gradients === plan.gradients ? plan : evaluated, {
+        steps,
+        seed: options.seed ?? 1,
+        simulate: options.simulateDynamicScale ? "always" : "when-empty",
+      }),
+    );
+  }
+  return answers;
 }
 
 /**

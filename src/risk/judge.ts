@@ -19,7 +19,7 @@ import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
 import { byRms, weightGradientsOf } from "./second-moments.js";
-import { scaledTensor, scaledTensorRisk, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
+import { lossScaleFactor, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -38,8 +38,13 @@ export interface CheckOptions {
   ledger?: boolean;
   /** also report each tensor's numbers in the judged formats that do not hold it (off by default) */
   everyFormat?: boolean;
-  /** a loss-scale window searched for the plan (set by `check`); its pick is applied when no scale is given */
+  /**
+   * a loss-scale window searched for the plan's gradients; when no scale is given, its pick is applied to every judged
+   * format whose plan as judged (`planFor`) holds gradients in the window's format
+   */
   lossScaleWindow?: LossScaleWindowSummary;
+  /** windows searched for other gradient formats (set by `check`: one per gradient format of the formats judged), applied as `lossScaleWindow` is */
+  lossScaleWindows?: readonly LossScaleWindowSummary[];
 }
 
 /** The plan entries a format can hold. */
@@ -54,6 +59,8 @@ export interface FormatCheck {
   planned: boolean;
   /** the plan entries the format holds when it is judged */
   holds: PlanEntry[];
+  /** present when the format was judged at another loss scale than the result's `lossScale` (its own gradients' window, or none) */
+  lossScale?: AppliedLossScale;
   verdict: Verdict;
   /** one sentence per kind of finding, most serious first */
   reasons: string[];
@@ -77,15 +84,23 @@ export interface TensorCheck {
   end: MagnitudeProfile;
   /** the factors from the seed to the tensor; present when the check was asked for ledgers */
   ledger?: LedgerEntry[];
-  /** rms, predicted max and low magnitude after the loss scale (`statistics.factor`) */
+  /** rms, predicted max and low magnitude after the result's loss scale (`statistics.factor`) */
   statistics: TensorStatistics;
   /** one entry per judged format that holds the tensor (every judged format with `everyFormat`), in the order of `formats` */
-  risks: TensorFormatRisk[];
+  risks: TensorCheckRisk[];
   /** the worst verdict over the formats that hold it */
   verdict: Verdict;
 }
 
-/** A window of loss scales found for the plan's gradient format (by src/scale's search), as the check reports it. */
+/**
+ * A tensor's risk in one format; `statistics` is present when the format was judged at another loss scale than the
+ * tensor's `statistics` (the numbers after that format's scale).
+ */
+export interface TensorCheckRisk extends TensorFormatRisk {
+  statistics?: TensorStatistics;
+}
+
+/** A window of loss scales found for a gradient format (by src/scale's search), as the check reports it. */
 export interface LossScaleWindowSummary {
   /** the format the gradients are held in */
   format: FormatName;
@@ -117,6 +132,7 @@ export interface CheckResult {
   spec: { name: string; source: string; description: string };
   /** the plan judged */
   plan: PrecisionPlan;
+  /** the loss scale applied to gradients: that of the first format judged; a format judged at another gives its own `lossScale` */
   lossScale: AppliedLossScale;
   /** the worst verdict over the judged formats */
   verdict: Verdict;
@@ -182,7 +198,8 @@ export function limitsFor(plan: PrecisionPlan, name: FormatName): RangeLimits {
   });
 }
 
-function appliedLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLossScale {
+// the scale given for every format (the caller's, then the plan's); undefined when each format's window decides
+function givenLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLossScale | undefined {
   if (options.lossScale !== undefined) {
     if (!(options.lossScale > 0) || !Number.isFinite(options.lossScale)) {
       throw new RangeError(`the loss scale must be a positive finite number, got ${options.lossScale}`);
@@ -190,10 +207,35 @@ function appliedLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLo
     return { value: options.lossScale, origin: "option" };
   }
   if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
-  const window = options.lossScaleWindow;
-  if (window === undefined) return { value: 1, origin: "none" };
+  return undefined;
+}
+
+function windowScale(window: LossScaleWindowSummary): AppliedLossScale {
   if (window.pickLog2 !== null) return { value: 2 ** window.pickLog2, origin: "recommended", window };
   return { value: 1, origin: "none", window };
+}
+
+/**
+ * The loss scale each setting is judged at: the given one for all; otherwise the pick of the window searched for the
+ * gradient format of the setting's plan as judged, or none (a format whose gradients need no scale, or no window given).
+ * Settings judged at the same scale share one object.
+ */
+function settingScales(plan: PrecisionPlan, settings: readonly FormatSetting[], options: CheckOptions): AppliedLossScale[] {
+  const given = givenLossScale(plan, options);
+  const scales: AppliedLossScale[] = [];
+  if (given !== undefined) {
+    for (let i = 0; i < settings.length; i++) scales.push(given);
+    return scales;
+  }
+  const windows = [...(options.lossScaleWindows ?? []), ...(options.lossScaleWindow === undefined ? [] : [options.lossScaleWindow])];
+  const applied = windows.map(windowScale);
+  let unscaled: AppliedLossScale | undefined;
+  for (let i = 0; i < settings.length; i++) {
+    const gradients = (settings[i] as FormatSetting).evaluated.gradients;
+    const found = windows.findIndex((w) => w.format === gradients);
+    scales.push(found >= 0 ? (applied[found] as AppliedLossScale) : (unscaled ??= { value: 1, origin: "none" }));
+  }
+  return scales;
 }
 
 function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {
@@ -214,12 +256,16 @@ function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[]
 export function judgePrediction(spec: NetworkSpec, prediction: Prediction, options: CheckOptions = {}): CheckResult {
   const plan = spec.precision;
   const thresholds = thresholdsOf(options.thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...options.thresholds });
-  const lossScale = appliedLossScale(plan, options);
+  // a bad loss scale is reported before an unknown format, as it always was
+  givenLossScale(plan, options);
   const formats = judgedFormats(plan, options);
   const settings = formatSettings(plan, formats, thresholds);
+  const scales = settingScales(plan, settings, options);
+  for (let i = 0; i < settings.length; i++) (settings[i] as FormatSetting).lossScale = (scales[i] as AppliedLossScale).value;
+  const lossScale = scales[0] as AppliedLossScale;
   const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
   const training = trainingSites(spec, prediction);
-  const contexts = hazardContexts(spec, settings, lossScale.value, thresholds);
+  const contexts = hazardContexts(spec, settings, thresholds);
   const hazards: HazardCheck[] = [];
   for (let i = 0; i < prediction.hazards.length; i++) {
     hazards.push(judgeSite(prediction.hazards[i] as HazardSite, "prediction", settings, contexts, spec, lossScale.value, thresholds));
@@ -230,13 +276,13 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const formatChecks: FormatCheck[] = [];
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
-    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards);
+    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards, scales[i] === lossScale ? undefined : scales[i]);
     verdict = worseVerdict(verdict, formatCheck.verdict);
     formatChecks.push(formatCheck);
   }
   const assumptions: string[] = [];
   for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
-  checkAssumptions(assumptions, plan, settings, lossScale, training.length > 0);
+  checkAssumptions(assumptions, plan, settings, scales, training.length > 0);
 
   return {
     version: 2,
@@ -263,6 +309,8 @@ interface FormatSetting {
   notHeld: TensorRiskOptions;
   /** index of the first setting judged under the same plan: one hazard evaluation serves both */
   contextIndex: number;
+  /** the loss scale its gradients are judged at (settings under the same plan share one) */
+  lossScale: number;
 }
 
 function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thresholds: RiskThresholds): FormatSetting[] {
@@ -287,6 +335,7 @@ function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thr
       held: { judged: true, perTensorScaling, blockScaling, thresholds },
       notHeld: { judged: false, perTensorScaling, blockScaling, thresholds },
       contextIndex,
+      lossScale: 1,
     });
   }
   return settings;
@@ -328,7 +377,7 @@ function judgeTensors(
 }
 
 // the format risks of the tensor being judged (its first entries), before they are copied out
-const RISKS: TensorFormatRisk[] = [];
+const RISKS: TensorCheckRisk[] = [];
 
 function judgeTensor(
   tensor: TensorPrediction,
@@ -338,6 +387,8 @@ function judgeTensor(
   everyFormat: boolean,
 ): TensorCheck {
   const scaled = scaledTensor(tensor, lossScale, thresholds);
+  // a format judged at another loss scale sees the tensor scaled by its own (gradients only; the rest are unscaled)
+  let other: ScaledTensor | undefined;
   // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
   // FP32); the loss-value hazard covers a loss kept in the activation format
   const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
@@ -349,7 +400,13 @@ function judgeTensor(
     const setting = settings[i] as FormatSetting;
     const judged = setting.evaluated[entry] === setting.format;
     if (!judged && !everyFormat) continue;
-    const risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
+    let risk: TensorCheckRisk;
+    if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === scaled.statistics.factor) {
+      risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
+    } else {
+      if (other === undefined || other.statistics.factor !== setting.lossScale) other = scaledTensor(tensor, setting.lossScale, thresholds);
+      risk = { ...scaledTensorRisk(tensor, other, setting.limits, judged ? setting.held : setting.notHeld), statistics: other.statistics };
+    }
     RISKS[count++] = risk;
     verdict = worseVerdict(verdict, risk.verdict);
   }
@@ -372,11 +429,11 @@ function judgeTensor(
 }
 
 // per setting, the hazard context of its plan (settings judged under the same plan share one)
-function hazardContexts(spec: NetworkSpec, settings: readonly FormatSetting[], lossScale: number, thresholds: RiskThresholds): HazardContext[] {
+function hazardContexts(spec: NetworkSpec, settings: readonly FormatSetting[], thresholds: RiskThresholds): HazardContext[] {
   const contexts: HazardContext[] = [];
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
-    contexts.push(setting.contextIndex === i ? hazardContext(spec, setting.evaluated, lossScale, thresholds) : (contexts[setting.contextIndex] as HazardContext));
+    contexts.push(setting.contextIndex === i ? hazardContext(spec, setting.evaluated, setting.lossScale, thresholds) : (contexts[setting.contextIndex] as HazardContext));
   }
   return contexts;
 }
@@ -435,7 +492,13 @@ function siteCheck(first: HazardCheck, evaluations: HazardEvaluation[], findings
   return check;
 }
 
-function judgeFormat(setting: FormatSetting, plan: PrecisionPlan, tensors: readonly TensorCheck[], hazards: readonly HazardCheck[]): FormatCheck {
+function judgeFormat(
+  setting: FormatSetting,
+  plan: PrecisionPlan,
+  tensors: readonly TensorCheck[],
+  hazards: readonly HazardCheck[],
+  ownScale: AppliedLossScale | undefined,
+): FormatCheck {
   const { format, evaluated } = setting;
   const findings: Finding[] = [];
   let tensorsJudged = 0;
@@ -465,6 +528,7 @@ function judgeFormat(setting: FormatSetting, plan: PrecisionPlan, tensors: reado
     format,
     planned: evaluated === plan,
     holds,
+    ...(ownScale === undefined ? {} : { lossScale: ownScale }),
     verdict: judgement.verdict,
     reasons: judgement.reasons,
     tensorsJudged,
@@ -608,9 +672,10 @@ function checkAssumptions(
   notes: string[],
   plan: PrecisionPlan,
   settings: readonly FormatSetting[],
-  lossScale: AppliedLossScale,
+  scales: readonly AppliedLossScale[],
   addedSites: boolean,
 ): void {
+  const lossScale = scales[0] as AppliedLossScale;
   if (lossScale.origin === "none") {
     notes.push(
       lossScale.window?.empty
@@ -624,6 +689,23 @@ function checkAssumptions(
     );
   } else {
     notes.push(`Gradients are judged multiplied by the loss scale ${scaleWords(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}), and the scaled loss as an operation.`);
+  }
+  // formats judged at another scale than the first (their gradients in another format), one sentence per scale
+  const told: AppliedLossScale[] = [lossScale];
+  for (let i = 1; i < scales.length; i++) {
+    const scale = scales[i] as AppliedLossScale;
+    if (told.includes(scale)) continue;
+    told.push(scale);
+    const names = settings.filter((_, j) => scales[j] === scale).map((setting) => setting.format).join(" and ");
+    const gradients = (settings[i] as FormatSetting).evaluated.gradients;
+    const is = names.includes(" and ") ? "are" : "is";
+    notes.push(
+      scale.origin === "recommended"
+        ? `${names} ${is} judged at another loss scale: ${gradients} gradients multiplied by the recommended ${scaleWords(scale.value)}, picked inside the window searched for ${gradients} gradients.`
+        : scale.window?.empty
+          ? `${names} ${is} judged with ${gradients} gradients unscaled (loss scale 1): no static loss scale keeps every ${gradients} gradient both below the overflow budget and above the flush tolerance.`
+          : `${names} ${is} judged with ${gradients} gradients unscaled (loss scale 1): they need no loss scale.`,
+    );
   }
   notes.push(
     "Overflow risk is the probability that at least one element of a step passes the overflow threshold, with " +

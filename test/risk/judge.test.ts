@@ -10,6 +10,7 @@ import {
   planFormats,
   tensorFormatRisk,
   tensorStatistics,
+  type LossScaleWindowSummary,
 } from "../../src/risk/index.js";
 import { trainingSites } from "../../src/risk/judge.js";
 import { parseSpec } from "../../src/spec/index.js";
@@ -217,6 +218,55 @@ describe("judgePrediction", () => {
     expect(first.tensors.some((t) => t.risks.length === 2 && t.risks.some((r) => r.findings.length > 0))).toBe(true);
     judgePrediction(spec(), PREDICTION, { lossScale: 2 ** 12 });
     expect(JSON.stringify(first)).toBe(before);
+  });
+
+  // a window as src/scale would report it for e5m2 gradients (the numbers are the test's, not a search's)
+  const e5m2Window: LossScaleWindowSummary = {
+    format: "e5m2",
+    lowestLog2: 8,
+    highestLog2: 16,
+    pickLog2: 12,
+    empty: false,
+    upperEdgeSetBy: "dense-0/weight-gradient",
+    lowerEdgeSetBy: "dense-0/weight-gradient",
+  };
+
+  it("applies a window's pick to the formats whose plan as judged holds gradients in its format, and judges the others unscaled", () => {
+    const s = spec();
+    const result = judgePrediction(s, PREDICTION, { formats: ["e5m2", "bfloat16"], lossScaleWindows: [e5m2Window] });
+    expect(result.lossScale).toEqual({ value: 4096, origin: "recommended", window: e5m2Window });
+    expect(result.formats.map((f) => f.lossScale)).toEqual([undefined, { value: 1, origin: "none" }]);
+    const gradient = PREDICTION.tensors[2]!;
+    const checked = result.tensors[2]!;
+    for (const [format, scale] of [["e5m2", 4096], ["bfloat16", 1]] as const) {
+      const statistics = tensorStatistics(gradient, scale, DEFAULT_THRESHOLDS);
+      const alone = tensorFormatRisk(gradient, limitsFor(planFor(s.precision, format), format), statistics, {
+        judged: true,
+        perTensorScaling: false,
+        thresholds: DEFAULT_THRESHOLDS,
+      });
+      const risk = checked.risks.find((r) => r.format === format)!;
+      const { statistics: own, ...numbers } = risk;
+      expect(numbers).toEqual(alone);
+      // the tensor's statistics are after the result's scale; a format judged at another carries its own
+      expect(own ?? checked.statistics).toEqual(statistics);
+      expect(own === undefined).toBe(scale === 4096);
+    }
+    // each format's operation sites are judged at its own scale, as judging it alone at that scale gives them
+    const bfloat16Alone = judgePrediction(s, PREDICTION, { formats: ["bfloat16"] });
+    const e5m2Alone = judgePrediction(s, PREDICTION, { formats: ["e5m2"], lossScale: 4096 });
+    result.hazards.forEach((hazard, i) => {
+      expect(hazard.evaluations.filter((e) => e.format === "bfloat16")).toEqual(bfloat16Alone.hazards[i]?.evaluations);
+      expect(hazard.evaluations.filter((e) => e.format === "e5m2")).toEqual(e5m2Alone.hazards[i]?.evaluations);
+    });
+    expect(result.assumptions.some((a) => a.startsWith("bfloat16 is judged with bfloat16 gradients unscaled"))).toBe(true);
+  });
+
+  it("leaves a window for another gradient format unapplied, and a given scale wins over every window", () => {
+    expect(judgePrediction(spec(), PREDICTION, { lossScaleWindow: e5m2Window }).lossScale).toEqual({ value: 1, origin: "none" });
+    const given = judgePrediction(spec(), PREDICTION, { formats: ["e5m2", "bfloat16"], lossScaleWindows: [e5m2Window], lossScale: 8 });
+    expect(given.lossScale).toEqual({ value: 8, origin: "option" });
+    expect(given.formats.every((f) => f.lossScale === undefined)).toBe(true);
   });
 
   it("rejects an unknown format and a non-positive loss scale with a RangeError echoing the value", () => {
