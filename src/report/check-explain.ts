@@ -99,7 +99,9 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
   out += "\n" + style.role("strong", "Risk") + "\n";
   for (const risk of tensor.risks) {
     const w = risk.worst;
-    const head = `  ${risk.format}${risk.judged ? "" : " (not holding it)"}: ${verdictText(risk.verdict, style)}; `;
+    // a format judged at another loss scale than the one above (its gradients' own window, or none)
+    const scaled = risk.statistics !== undefined && risk.statistics.factor !== tensor.statistics.factor ? ` (at loss scale ${formatValue(risk.statistics.factor)})` : "";
+    const head = `  ${risk.format}${risk.judged ? "" : " (not holding it)"}${scaled}: ${verdictText(risk.verdict, style)}; `;
     const numbers =
       `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)}, ` +
       `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +

@@ -3,7 +3,8 @@
  * hazards, the assumptions and the caution. Pure: a CheckResult in, a string out.
  */
 import type { CheckAnswer } from "../check.js";
-import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorFormatRisk, Verdict } from "../risk/index.js";
+import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
+import { lossScaleItems } from "./summary.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -22,22 +23,28 @@ export interface CheckTextOptions {
 /** The loss-scale answer and the optimizer check, as two short sections. */
 export function renderDecisions(result: CheckAnswer, width: number, style: Style = PLAIN): string {
   let out = "";
-  const answer = result.lossScaleAnswer;
   out += "\n" + style.role("strong", "Loss scale") + "\n";
-  if (answer === null) {
-    out += wrap(`gradients are held in ${result.plan.gradients}: no loss scale is needed.`, width, "  ", "  ");
-  } else {
-    for (const sentence of answer.sentences) out += wrap(sentence, width, "  ", "  ");
-    answer.remedies.forEach((remedy, i) =>
-      out += wrap(`${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`, width, `  ${i + 1}. `, "     "),
+  const items = lossScaleItems(result);
+  // answers are named by their format when it is not the plan's gradient format, or when there are several
+  const named = items.length > 1 || items.some((item) => typeof item !== "string" && item.format !== result.plan.gradients);
+  for (const item of items) {
+    if (typeof item === "string") {
+      out += wrap(`gradients are held in ${item}: no loss scale is needed.`, width, "  ", "  ");
+      continue;
+    }
+    const indent = named ? "    " : "  ";
+    if (named) out += `  ${item.format} gradients:\n`;
+    for (const sentence of item.sentences) out += wrap(sentence, width, indent, indent);
+    item.remedies.forEach((remedy, i) =>
+      out += wrap(`${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`, width, `${indent}${i + 1}. `, `${indent}   `),
     );
-    const d = answer.dynamic;
-    if (d && answer.remedies.length === 0) {
+    const d = item.dynamic;
+    if (d && item.remedies.length === 0) {
       out += wrap(
         `dynamic scaling (simulated over ${d.steps} steps, seed ${d.seed}): ${d.skippedSteps} skipped steps, settling between ${formatValue(d.settledLowest)} and ${formatValue(d.settledHighest)}.`,
         width,
-        "  ",
-        "  ",
+        indent,
+        indent,
       );
     }
   }
@@ -90,18 +97,22 @@ export function describePlan(plan: PrecisionPlan): string {
   return parts.join(", ");
 }
 
-/** The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. */
-export function describeLossScale(scale: AppliedLossScale): string {
+/**
+ * The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. With
+ * `formats`, the line names the judged formats it is about ("loss scale for e5m2: ...").
+ */
+export function describeLossScale(scale: AppliedLossScale, formats?: readonly string[]): string {
   const window = scale.window;
   const power = (k: number | null): string => (k === null ? "none" : `2^${k}`);
+  const head = formats === undefined ? "loss scale" : `loss scale for ${formats.join(", ")}`;
   switch (scale.origin) {
     case "plan":
-      return `loss scale: ${formatValue(scale.value)} (from the plan).`;
+      return `${head}: ${formatValue(scale.value)} (from the plan).`;
     case "option":
-      return `loss scale: ${formatValue(scale.value)} (from the command line).`;
+      return `${head}: ${formatValue(scale.value)} (from the command line).`;
     case "recommended":
       return (
-        `loss scale: none in the plan; judged with the recommended 2^${window?.pickLog2} = ${formatValue(scale.value)}, ` +
+        `${head}: none in the plan; judged with the recommended 2^${window?.pickLog2} = ${formatValue(scale.value)}, ` +
         `inside the window ${power(window?.lowestLog2 ?? null)} to ${power(window?.highestLog2 ?? null)}` +
         (window?.lowerEdgeSetBy ? ` (below it ${window.lowerEdgeSetBy} flushes` : " (") +
         (window?.upperEdgeSetBy ? `${window?.lowerEdgeSetBy ? "; " : ""}above it ${window.upperEdgeSetBy} overflows)` : ")") +
@@ -109,9 +120,9 @@ export function describeLossScale(scale: AppliedLossScale): string {
         "."
       );
     case "none":
-      if (window === undefined) return "loss scale: none given, gradients judged unscaled.";
+      if (window === undefined) return `${head}: none given, gradients judged unscaled.`;
       return (
-        `loss scale: none given, and no static loss scale fits the ${window.format} gradients (` +
+        `${head}: none given, and no static loss scale fits the ${window.format} gradients (` +
         (window.lowestLog2 === null
           ? `${window.lowerEdgeSetBy ?? "a gradient"} flushes even at the largest scale searched`
           : `${window.lowerEdgeSetBy ?? "a gradient"} needs at least 2^${window.lowestLog2} not to flush`) +
@@ -153,9 +164,29 @@ function pair(start: number, end: number): string {
   return `${formatValue(start, 2)}→${formatValue(end, 2)}`;
 }
 
+/**
+ * The loss-scale lines under the plan: one when every format was judged at the result's scale, else one per scale
+ * with the formats judged at it. Formats are named when any judged format is not the plan's.
+ */
+export function lossScaleLines(result: CheckResult): string[] {
+  const groups: { scale: AppliedLossScale; formats: string[] }[] = [];
+  for (const format of result.formats) {
+    const scale = format.lossScale ?? result.lossScale;
+    let group = groups.find((g) => sameScale(g.scale, scale));
+    if (group === undefined) groups.push((group = { scale, formats: [] }));
+    group.formats.push(format.format);
+  }
+  if (groups.length <= 1 && result.formats.every((f) => f.planned)) return [describeLossScale(result.lossScale)];
+  return groups.map((g) => describeLossScale(g.scale, g.formats));
+}
+
+function sameScale(a: AppliedLossScale, b: AppliedLossScale): boolean {
+  return a === b || (a.value === b.value && a.origin === b.origin && a.window?.format === b.window?.format);
+}
+
 /** The rows of the tensor table: each tensor in each format that holds it; with `all` false, only those at risk, failing first. */
-export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorCheck; risk: TensorFormatRisk }[] {
-  const rows: { tensor: TensorCheck; risk: TensorFormatRisk }[] = [];
+export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorCheck; risk: TensorCheckRisk }[] {
+  const rows: { tensor: TensorCheck; risk: TensorCheckRisk }[] = [];
   for (const tensor of result.tensors) {
     for (const risk of tensor.risks) {
       if (!risk.judged) continue;
@@ -171,13 +202,14 @@ export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorC
 export const TENSOR_ROW_LIMIT = 30;
 
 /** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, overflow per step, verdict). */
-export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorFormatRisk }[], style: Style = PLAIN): string {
+export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorCheckRisk }[], style: Style = PLAIN): string {
+  // a format judged at another loss scale has the tensor's numbers after its own scale
   const cells: Cell[][] = rows.map(({ tensor, risk }) => [
     tensor.layer,
     tensor.role + (tensor.id.includes(":") ? `:${tensor.id.slice(tensor.id.indexOf(":") + 1)}` : ""),
     risk.format,
-    pair(tensor.statistics.start.rms, tensor.statistics.end.rms),
-    pair(tensor.statistics.start.max, tensor.statistics.end.max),
+    pair((risk.statistics ?? tensor.statistics).start.rms, (risk.statistics ?? tensor.statistics).end.rms),
+    pair((risk.statistics ?? tensor.statistics).start.max, (risk.statistics ?? tensor.statistics).end.max),
     binadesCell(risk.worst.headroom),
     binadesCell(risk.worst.footroom),
     formatProbability(risk.worst.flushedFraction),
@@ -236,7 +268,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   let out = "";
   out += style.role("heading", `headroom check: ${result.spec.name}`) + ` (${result.spec.source})\n`;
   out += wrap(`plan ${result.plan.name}: ${describePlan(result.plan)}.`, width, "", "  ");
-  out += wrap(describeLossScale(result.lossScale), width, "", "  ");
+  for (const line of lossScaleLines(result)) out += wrap(line, width, "", "  ");
   // profiles from tensor files or recorded statistics (the spec's `measured` section) are named; the rest are predicted
   const measured = result.tensors.filter((t) => t.source === "measured").map((t) => t.id);
   if (measured.length > 0) {

@@ -6,7 +6,7 @@ import { scaleLinear } from "d3-scale";
 import type { LossScaleSummary, SummaryVerdict } from "../batch/types.js";
 import { formatRiskValue, verdictWords } from "./batch.js";
 import { formatBinades, formatPowerOfTwo } from "./number.js";
-import type { ReportFormatRange, ReportLedger, ReportModel, ReportTensorBand } from "./report-model.js";
+import type { ReportFormatRange, ReportLedger, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
 
 export type { ReportModel } from "./report-model.js";
 
@@ -276,6 +276,12 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): 
   );
 }
 
+// a section named by its gradient format when the report shows it by name
+function namedLossScaleSection(scale: ReportLossScale): string {
+  const body = lossScaleSection(scale.summary, scale.notes);
+  return scale.format === undefined ? body : `<h3>${e(scale.format)} gradients</h3>${body}`;
+}
+
 // ---------------------------------------------------------------------------------------------
 // the ledger as a waterfall of per-layer factors
 
@@ -498,7 +504,7 @@ export function renderHtmlReport(model: ReportModel): string {
     `<p class="verdict-word">${e(capitalised(verdictWords(model.verdict)))}</p>${reasons}<p class="caveat">${e(CAVEAT)}</p></section>`,
     `<section aria-labelledby="formats"><h2 id="formats">Formats in the plan</h2>${formatsTable(model)}</section>`,
     `<section aria-labelledby="bands"><h2 id="bands">Where each tensor sits</h2>${bandSection(model)}</section>`,
-    `<section aria-labelledby="scale"><h2 id="scale">Loss scale</h2>${lossScaleSection(model.lossScale.summary, model.lossScale.notes)}</section>`,
+    `<section aria-labelledby="scale"><h2 id="scale">Loss scale</h2>${[model.lossScale, ...(model.moreLossScales ?? [])].map(namedLossScaleSection).join("")}</section>`,
     `<section aria-labelledby="ledger"><h2 id="ledger">How the worst tensor got its size</h2>${ledgerSection(model.ledger)}</section>`,
     `<section aria-labelledby="findings"><h2 id="findings">Findings</h2>${findingsTable(model)}</section>`,
     `<section aria-labelledby="assumptions"><h2 id="assumptions">Assumptions</h2>${assumptions}</section>`,

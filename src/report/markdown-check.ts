@@ -6,7 +6,8 @@ import { escapeMarkdown, markdownCode, markdownTable } from "./markdown.js";
 import { formatRiskValue, lossScaleCells, verdictWords } from "./batch.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
-import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
+import type { LossScaleSummary } from "../batch/types.js";
+import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf } from "./summary.js";
 
 /** Options of {@link renderCheckMarkdown}. */
 export interface CheckMarkdownOptions {
@@ -55,16 +56,22 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
       ]),
     );
   }
-  const scale = lossScaleOf(result);
-  const cells = lossScaleCells(scale);
-  out +=
-    scale.status === "window"
-      ? `\nLoss scale: pick ${escapeMarkdown(cells.pick)}, window ${escapeMarkdown(cells.window)}.\n`
-      : scale.status === "empty"
-        ? `\nLoss scale: no static scale serves the whole horizon. ${escapeMarkdown(scale.reason)}\n`
-        : scale.status === "not-needed"
-          ? `\nLoss scale: not needed (gradients are held in a format with binary32's range).\n`
-          : `\nLoss scale: _not evaluated_.\n`;
+  // one line, or one per gradient format when the check answered for several (or for another than the plan's)
+  const scales = lossScalesOf(result);
+  const named = scales.length > 1 || scales.some((s) => s.format !== result.plan.gradients);
+  if (scales.length === 0) out += lossScaleLine("Loss scale", lossScaleOf(result));
+  else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s.summary);
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
+}
+
+function lossScaleLine(head: string, scale: LossScaleSummary): string {
+  const cells = lossScaleCells(scale);
+  return scale.status === "window"
+    ? `\n${head}: pick ${escapeMarkdown(cells.pick)}, window ${escapeMarkdown(cells.window)}.\n`
+    : scale.status === "empty"
+      ? `\n${head}: no static scale serves the whole horizon. ${escapeMarkdown(scale.reason)}\n`
+      : scale.status === "not-needed"
+        ? `\n${head}: not needed (gradients are held in a format with binary32's range).\n`
+        : `\n${head}: _not evaluated_.\n`;
 }

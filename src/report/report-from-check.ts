@@ -6,8 +6,8 @@ import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
-import type { ReportFormatRange, ReportModel, ReportTensorBand } from "./report-model.js";
-import { FINDING_WORDS, findingsWorstFirst, lossScaleOf } from "./summary.js";
+import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
+import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf } from "./summary.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
 
@@ -69,6 +69,17 @@ function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
   };
 }
 
+/**
+ * The loss-scale sections: one per gradient format the check answered for (see lossScaleItems), named by the format
+ * when there are several or it is not the plan's gradient format.
+ */
+function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
+  const scales = lossScalesOf(result);
+  if (scales.length === 0) return [{ summary: lossScaleOf(result), notes: [] }];
+  const named = scales.length > 1 || scales.some((s) => s.format !== result.plan.gradients);
+  return scales.map((s) => (named ? { summary: s.summary, notes: s.notes, format: s.format } : { summary: s.summary, notes: s.notes }));
+}
+
 /** Options of {@link reportModel}. */
 export interface ReportModelOptions {
   /** the version printed in the footer */
@@ -84,8 +95,8 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
   const ledgerTensor = worstTensor ? result.tensors.find((t) => t.id === worstTensor.subject) : undefined;
   // the optimizer's reasons and an empty loss-scale window count in the verdict too
   const optimizerReasons = "optimizer" in result && result.optimizer.verdict !== "fits" ? result.optimizer.reasons : [];
-  const scale = lossScaleOf(result);
-  const scaleReasons = scale.status === "empty" ? [scale.reason] : [];
+  const scales = lossScaleModels(result);
+  const scaleReasons = scales.flatMap((s) => (s.summary.status === "empty" ? [s.summary.reason] : []));
   const reasons = [...result.formats.flatMap((f) => f.reasons), ...scaleReasons, ...optimizerReasons];
   return {
     title: result.spec.name,
@@ -97,7 +108,8 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
     formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h) })),
     ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => ENTRY_WORDS[h] ?? h))),
     tensors: result.tensors.map((t) => band(result, t)),
-    lossScale: { summary: scale, notes: "lossScaleAnswer" in result && result.lossScaleAnswer ? result.lossScaleAnswer.sentences : [] },
+    lossScale: scales[0] as ReportLossScale,
+    ...(scales.length > 1 ? { moreLossScales: scales.slice(1) } : {}),
     ledger: ledgerTensor?.ledger
       ? {
           subject: ledgerTensor.id,

@@ -75,6 +75,8 @@ export interface ReportLossScale {
   summary: LossScaleSummary;
   /** one sentence per bound of the window, e.g. why scales above it overflow */
   notes: string[];
+  /** the gradient format the section is about; present when the report shows it by name (several, or not the plan's) */
+  format?: string;
 }
 
 /** Everything the HTML report shows. */
@@ -94,6 +96,8 @@ export interface ReportModel {
   ranges: ReportFormatRange[];
   tensors: ReportTensorBand[];
   lossScale: ReportLossScale;
+  /** further loss-scale sections, one per further gradient format of the formats judged */
+  moreLossScales?: ReportLossScale[];
   /** the ledger of the worst tensor; null when there is none to show */
   ledger: ReportLedger | null;
   findings: ReportFinding[];

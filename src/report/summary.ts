@@ -5,7 +5,9 @@
  */
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
+import type { FormatName } from "../formats/names.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
+import type { LossScaleAnswer } from "../scale/recommend.js";
 
 /** How each kind of finding is named in a row, and what its number measures. */
 export const FINDING_WORDS = {
@@ -92,7 +94,39 @@ export function worstOf(result: CheckResult | CheckAnswer): WorstSummary | null 
  */
 export function lossScaleOf(result: CheckResult | CheckAnswer): LossScaleSummary {
   if (!("lossScaleAnswer" in result)) return { status: "not-evaluated" };
-  const answer = result.lossScaleAnswer;
+  return answerSummary(result.lossScaleAnswer);
+}
+
+/**
+ * What the "Loss scale" section tells, in order: per gradient format held by a judged format, its answer or (a format
+ * that needs no scale) its name; then any answer about gradients no judged format holds (a judged format that holds
+ * none, such as binary32 for the states, is judged at the plan's scale). The plan's gradient format when none is left.
+ */
+export function lossScaleItems(result: CheckAnswer): (LossScaleAnswer | FormatName)[] {
+  const answers = [...(result.lossScaleAnswer === null ? [] : [result.lossScaleAnswer]), ...(result.moreLossScaleAnswers ?? [])];
+  const items: (LossScaleAnswer | FormatName)[] = [];
+  for (const format of result.formats) {
+    if (!format.holds.includes("gradients")) continue;
+    items.push(answers.find((a) => a.format === format.format) ?? format.format);
+  }
+  for (const answer of answers) if (!items.includes(answer)) items.push(answer);
+  if (items.length === 0) items.push(result.plan.gradients);
+  return items;
+}
+
+/**
+ * Every loss-scale answer of a check in a row's terms, one per item of {@link lossScaleItems}, with the gradient
+ * format it is about and the answer's sentences; empty for a result without an answer (a bare judgement).
+ */
+export function lossScalesOf(result: CheckResult | CheckAnswer): { format: FormatName; summary: LossScaleSummary; notes: string[] }[] {
+  if (!("lossScaleAnswer" in result)) return [];
+  return lossScaleItems(result).map((item) =>
+    typeof item === "string" ? { format: item, summary: answerSummary(null), notes: [] } : { format: item.format, summary: answerSummary(item), notes: item.sentences },
+  );
+}
+
+/** One loss-scale answer in a row's terms; "not needed" for none. */
+function answerSummary(answer: LossScaleAnswer | null): LossScaleSummary {
   if (answer === null) return { status: "not-needed" };
   const w = answer.window;
   if (w.empty || w.pickLog2 === null || w.lowestLog2 === null || w.highestLog2 === null) {

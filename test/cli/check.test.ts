@@ -109,6 +109,32 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(brain.status).toBe(0);
   });
 
+  it("--format e5m2 on a binary16 plan judges e5m2 at the pick of e5m2's own window, and says so", () => {
+    const he = "specs/deep-relu-he.yaml";
+    const json = runCli(["check", "--json", "--format", "e5m2", he]);
+    expect(json.stderr).toBe("");
+    const result = JSON.parse(json.stdout) as {
+      lossScale: { value: number; origin: string; window?: { format: string; pickLog2: number } };
+      lossScaleAnswer: { format: string; window: { lowestLog2: number; pickLog2: number } };
+    };
+    const plain = JSON.parse(runCli(["check", "--json", he]).stdout) as typeof result;
+    expect(result.lossScaleAnswer.format).toBe("e5m2");
+    expect(result.lossScale.window?.format).toBe("e5m2");
+    const pick = result.lossScaleAnswer.window.pickLog2;
+    expect(result.lossScale.value).toBe(2 ** pick);
+    // e5m2's smallest subnormal 2^-16 (OCP 8-bit floating point specification) is 8 binades above binary16's 2^-24
+    // (IEEE 754-2019): the flush edge of its window moves up by 8
+    expect(result.lossScaleAnswer.window.lowestLog2).toBe(plain.lossScaleAnswer.window.lowestLog2 + 8);
+    const text = runCli(["check", "--format", "e5m2", he]);
+    expect(text.stderr).toBe("");
+    const flat = text.stdout.replace(/\s+/g, " ");
+    expect(flat).toContain(`loss scale for e5m2: none in the plan; judged with the recommended 2^${pick} = ${2 ** pick}`);
+    expect(text.stdout).toMatch(/\nLoss scale\n {2}e5m2 gradients:\n/);
+    expect(flat).toContain(`Use a static loss scale of 2^${pick}`);
+    // exit code 1 when the verdict is "fails", 0 otherwise (README.md, "Exit codes")
+    expect(text.status).toBe((JSON.parse(json.stdout) as { verdict: string }).verdict === "fails" ? 1 : 0);
+  });
+
   it("an unknown plan names the spec's plans", () => {
     const run = runCli(["check", "--plan", "nope", "specs/deep-relu-he.yaml"]);
     expect(run.status).toBe(2);

@@ -11,7 +11,8 @@ export function addJudgeOptions(command: Command): Command {
       new Option(
         "--format <formats>",
         `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")}); ` +
-          "the loss scale and optimizer are still answered for the plan, but count in the verdict only in the plan's formats judged",
+          "with no loss scale given, each is judged at the pick of its own gradients' window (none for bfloat16); " +
+          "the optimizer is still answered for the plan, but counts in the verdict only in the plan's formats judged",
       ).argParser(
         (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
       ),
