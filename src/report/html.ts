@@ -242,13 +242,14 @@ function legendHtml(): string {
 // ---------------------------------------------------------------------------------------------
 // the loss-scale window
 
-function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): string {
+function lossScaleSection(summary: LossScaleSummary, notes: readonly string[], unscaledReason: string | undefined): string {
   const notesHtml = notes.length > 0 ? `<ul class="notes">${notes.map((note) => `<li>${e(note)}</li>`).join("")}</ul>` : "";
   if (summary.status === "not-evaluated") {
     return `<p class="not-evaluated"><strong>Not evaluated.</strong> This check did not work out a loss-scale window for the plan.</p>${notesHtml}`;
   }
   if (summary.status === "not-needed") {
-    return `<p>No loss scale is needed: the plan holds gradients in a format with binary32's exponent range, where they neither overflow nor flush at the predicted sizes.</p>${notesHtml}`;
+    const why = unscaledReason === undefined ? "" : `: ${e(unscaledReason)}`;
+    return `<p>No loss scale is needed${why}. Whether any gradient overflows or flushes unscaled is in the tensors' findings.</p>${notesHtml}`;
   }
   if (summary.status === "empty") {
     return `<p class="empty-window"><strong>No static loss scale serves the whole horizon.</strong> ${e(summary.reason)}</p>${notesHtml}`;
@@ -278,7 +279,7 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): 
 
 // a section named by its gradient format when the report shows it by name
 function namedLossScaleSection(scale: ReportLossScale): string {
-  const body = lossScaleSection(scale.summary, scale.notes);
+  const body = lossScaleSection(scale.summary, scale.notes, scale.unscaledReason);
   return scale.format === undefined ? body : `<h3>${e(scale.format)} gradients</h3>${body}`;
 }
 

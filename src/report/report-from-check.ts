@@ -7,7 +7,7 @@ import type { FormatName } from "../formats/names.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
-import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf } from "./summary.js";
+import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf, unscaledReason } from "./summary.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
 
@@ -77,7 +77,12 @@ function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
   const scales = lossScalesOf(result);
   if (scales.length === 0) return [{ summary: lossScaleOf(result), notes: [] }];
   const named = scales.length > 1 || scales.some((s) => s.format !== result.plan.gradients);
-  return scales.map((s) => (named ? { summary: s.summary, notes: s.notes, format: s.format } : { summary: s.summary, notes: s.notes }));
+  return scales.map((s) => {
+    const model: ReportLossScale = { summary: s.summary, notes: s.notes };
+    if (named) model.format = s.format;
+    if (s.summary.status === "not-needed") model.unscaledReason = unscaledReason(s.format, result.plan.scaling);
+    return model;
+  });
 }
 
 /** Options of {@link reportModel}. */

@@ -77,6 +77,8 @@ export interface ReportLossScale {
   notes: string[];
   /** the gradient format the section is about; present when the report shows it by name (several, or not the plan's) */
   format?: string;
+  /** when no scale is needed: why, as a clause ("gradients are held in bfloat16, which has binary32's exponent range") */
+  unscaledReason?: string;
 }
 
 /** Everything the HTML report shows. */

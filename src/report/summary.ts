@@ -5,8 +5,10 @@
  */
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
+import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
+import type { PrecisionPlan } from "../spec/types.js";
 import type { LossScaleAnswer } from "../scale/recommend.js";
 
 /** How each kind of finding is named in a row, and what its number measures. */
@@ -123,6 +125,18 @@ export function lossScalesOf(result: CheckResult | CheckAnswer): { format: Forma
   return lossScaleItems(result).map((item) =>
     typeof item === "string" ? { format: item, summary: answerSummary(null), notes: [] } : { format: item.format, summary: answerSummary(item), notes: item.sentences },
   );
+}
+
+/**
+ * Why gradients held in `format` take no loss scale, as a clause: the rule of src/check.ts `needsLossScale`
+ * (binary32's exponent range or wider, or 8-bit with scale factors). It says nothing of the gradients' sizes: the
+ * tensors' own findings tell whether any overflows or flushes unscaled.
+ */
+export function unscaledReason(format: FormatName, scaling: PrecisionPlan["scaling"]): string {
+  const f = FORMATS[format];
+  if (f.bits === 8 && scaling !== "none") return `gradients are held in ${format} with per-${scaling} scale factors`;
+  if (format === "binary32" || format === "binary64") return `gradients are held in ${format}`;
+  return `gradients are held in ${format}, which has ${f.exponentBits > 8 ? "more than " : ""}binary32's exponent range`;
 }
 
 /** One loss-scale answer in a row's terms; "not needed" for none. */
