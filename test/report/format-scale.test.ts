@@ -97,7 +97,9 @@ describe("HTML report", () => {
       lowLog2: e5m2.lossScaleAnswer!.window.lowestLog2,
       highLog2: e5m2.lossScaleAnswer!.window.highestLog2,
     });
-    expect(model.moreLossScales).toEqual([{ format: "bfloat16", summary: { status: "not-needed" }, notes: [] }]);
+    expect(model.moreLossScales).toEqual([
+      { format: "bfloat16", summary: { status: "not-needed" }, notes: [], unscaledReason: "gradients are held in bfloat16, which has binary32's exponent range" },
+    ]);
     const html = renderHtmlReport(model);
     expect(html).toContain("<h3>e5m2 gradients</h3>");
     expect(html).toContain("<h3>bfloat16 gradients</h3>");
