@@ -6,6 +6,7 @@ import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
 import { formatSpecIssue, formatSpecPath } from "../spec/index.js";
 import { loadSpecReporting } from "./load-spec.js";
+import { parseLossScale } from "./shared.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 /** Options shared by `check` and `explain`. */
@@ -43,15 +44,6 @@ export function judgeOptions(flags: JudgeFlags): CheckOptions {
   return options;
 }
 
-function parseLossScale(text: string | undefined): number | undefined {
-  if (text === undefined) return undefined;
-  const value = Number(text);
-  // a loss scale is a power of two (Micikevicius et al. 2018 §3.2), so scaling and unscaling are exact
-  if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
-    throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
-  }
-  return value;
-}
 
 /**
  * Load a spec and check it with the command's flags. Spec problems are printed one per line

@@ -15,7 +15,7 @@ import {
   type SimulationReport,
   type SimulationResult,
 } from "../simulate/index.js";
-import { writeFileAtomic } from "./shared.js";
+import { parseLossScale, writeFileAtomic } from "./shared.js";
 import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
@@ -51,7 +51,7 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
     predict,
     ...(flags.shrink !== undefined ? { shrink: parseShrink(flags.shrink) } : {}),
     ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
-    ...(flags.lossScale !== undefined ? { lossScale: positive("--loss-scale", flags.lossScale) } : {}),
+    ...(flags.lossScale !== undefined ? { lossScale: parseLossScale(flags.lossScale) as number } : {}),
   };
   let report: SimulationReport;
   try {

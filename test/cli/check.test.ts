@@ -150,6 +150,11 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(notPower.status).toBe(2);
     expect(notPower.stderr).toMatch(/--loss-scale: expected a power of two such as 1024 or 0.5, got "1000"/);
     expect(notPower.stderr).not.toMatch(STACK);
+    // the spec's own bound on loss-scale: binary32's normal range, 2^-126 to 2^127 (IEEE 754-2019 Table 3.5)
+    const huge = runCli(["check", "--loss-scale", String(2 ** 200), "specs/deep-relu-he.yaml"]);
+    expect(huge.status).toBe(2);
+    expect(huge.stderr).toMatch(/--loss-scale: 2\^200 is outside the binary32 range \(2\^-126 to 2\^127\)/);
+    expect(runCli(["check", "--json", "--loss-scale", String(2 ** 127), "specs/deep-relu-he.yaml"]).stderr).toBe("");
   });
 
   it("check --vary reads --loss-scale by the same rule and message as a plain check", () => {

@@ -82,8 +82,17 @@ describe("headroom simulate (the built binary)", () => {
   });
 
   it("exits 1 when a stored tensor overflows (a loss scale far too large for binary16)", () => {
-    const run = runCli(["simulate", specFile("small.yaml", SMALL), "--loss-scale", "1e12"]);
+    const run = runCli(["simulate", specFile("small.yaml", SMALL), "--loss-scale", String(2 ** 40)]);
     expect(run.status).toBe(1);
+  });
+
+  it("reads --loss-scale by check's rule and message: a power of two (Micikevicius et al. 2018 §3.2)", () => {
+    const file = specFile("small.yaml", SMALL);
+    const run = runCli(["simulate", file, "--loss-scale", "1000"]);
+    expect(run.status).toBe(2);
+    expect(run.stdout).toBe("");
+    expect(run.stderr).toBe(runCli(["check", "--loss-scale", "1000", file]).stderr);
+    expect(run.stderr).toBe('headroom: --loss-scale: expected a power of two such as 1024 or 0.5, got "1000"\n');
   });
 
   it("refuses a spec too large for the memory limit with the memory it needs and a --shrink that fits, exit 2, no stack", () => {
