@@ -390,7 +390,8 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
   const kind = measureKind(measure);
   const decided = setLawIntegrand(profile, kind, t, positiveOnly);
   if (!Number.isNaN(decided)) return decided;
-  if (kind !== ANY_ABOVE && integrandLaw === GAUSSIAN) {
+  if (kind === ANY_ABOVE) return anyAboveOverDraws(profile.rms, profile.log2Spread, t);
+  if (integrandLaw === GAUSSIAN) {
     const value = gaussianTableValue(kind, profile.log2Spread, Math.log2(t) - Math.log2(profile.rms));
     if (!Number.isNaN(value)) return value;
   }
@@ -402,9 +403,18 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
  * method the rows' interpolation is held to in the tests.
  */
 export function directLawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
-  const decided = setLawIntegrand(profile, measureKind(measure), t, positiveOnly);
+  const kind = measureKind(measure);
+  const decided = setLawIntegrand(profile, kind, t, positiveOnly);
   if (!Number.isNaN(decided)) return decided;
+  if (kind === ANY_ABOVE) return anyAboveOverDraws(profile.rms, profile.log2Spread, t);
   return drawSum(profile.rms, profile.log2Spread);
+}
+
+// the any-above sum of the current integrand (set by setLawIntegrand) at threshold t (see anyAboveSum)
+function anyAboveOverDraws(rms: number, log2Spread: number, t: number): number {
+  const x = Math.log2(t) - Math.log2(rms);
+  if (!(log2Spread > 0) || !Number.isFinite(x)) return integrand(rms);
+  return anyAboveSum(x, log2Spread, anyRule(log2Spread));
 }
 
 /**
@@ -729,7 +739,8 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
   const b = integrand(rms * factorAt(factors, factors.length - 1, log2Spread));
   if (a === b) return bounds(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
   const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
-  const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12));
+  // the any-above sums integrate every draw: the draws beyond ±9 (mass 2Q(9) < 2.3e-19, A&S 26.2.29) may carry up to 1
+  const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12) + (integrandKind === ANY_ABOVE ? 2.3e-19 : 0));
   if (!inner || outerLow === outerHigh) return bounds(outerLow, outerHigh);
   const c = integrand(rms * factorAt(factors, INNER_LOW_NODE, log2Spread));
   const d = integrand(rms * factorAt(factors, INNER_HIGH_NODE, log2Spread));
@@ -1109,6 +1120,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   latticeClosure = null;
   const spread = profile.log2Spread;
   if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
+  if (decreasing && p > 0 && p < anyOf(integrandShare, integrandCount)) return anyAboveLevel(spread, p);
   // the share below a level does not depend on the element count: tensors of one spread and law share it
   const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
   const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
@@ -1250,4 +1262,442 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
   if (a > 0 && b > 0 && a !== b) fraction = (Math.log(p) - Math.log(a)) / (Math.log(b) - Math.log(a));
   else if (a !== b) fraction = (p - a) / (b - a);
   return (origin + lo + Math.min(1, Math.max(0, fraction))) * step;
+}
+
+// Any-above draw sums: I(x) = E_z[g(x − s·z)], z ~ N(0, 1), g(v) = anyOf(share·above(1, 2^v), n), x = log2(t/rms),
+// s the spread (every element law but the constant one depends on t/r only). For many elements g is a step in v of
+// width σ_v far narrower than the draw rule's nodes (spread/8 apart in v). Where the step is narrower than the
+// draws (σ_v < s), the sum subtracts the smooth step A·Φ((z − z_c)/σ) fitted to g's (A = g far below the scale,
+// z_c where g = A/2, σ = σ_v/s from g's slope there), whose draw sum is closed form, E_z[Φ((z − c)/σ)] =
+// Φ(−c/√(1 + σ²)) (the difference of two normals), and integrates the remainder by the trapezoid rule in ξ with
+// z = z_c + σ·sinh ξ: fine nodes at the step, coarse ones far from it. The remainder at a node, g(v½ − σ_v·sinh ξ)
+// − A·Φ(sinh ξ), depends on the law and the element count only (not on the threshold or the spread), so it is
+// computed once per law and count and shared by every threshold and spread. The trapezoid rule converges
+// geometrically for analytic integrands (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory): the step
+// in ξ is halved from 1/2 until two sums agree to ANY_TOLERANCE, the last then good to about its square. A step as
+// wide as the draws or wider is smooth on their scale, and the draw rule sums it (within 1e-7 of a converged
+// reference there, test/risk/any-above.test.ts); the uniform law's kink is integrated from the kink on.
+const ANY_TOLERANCE = 1e-7;
+const ANY_GEOMETRIC = 1e-4;
+const GEOMETRIC_COUNT = 16;
+// node j of the tables stands at ξ = j/16; steps 1/2 … 1/16
+const ANY_UNIT = 16;
+const ANY_FIRST_STRIDE = 8;
+const ANY_REACH = 12;
+const ANY_TABLE = ANY_REACH * ANY_UNIT + 1;
+// the map's scale in units of the fitted step's width: a little wider than the step converges in fewer nodes (measured
+// over the benchmark spec's sums: 1.5 against 1)
+const MAP_WIDTH = 1.5;
+const SINH = new Float64Array(ANY_TABLE);
+const COSH = new Float64Array(ANY_TABLE);
+// Φ(sinh ξ_j)
+const STEP_UP = new Float64Array(ANY_TABLE);
+const STEP_DOWN = new Float64Array(ANY_TABLE);
+for (let j = 0; j < ANY_TABLE; j++) {
+  const xi = j / ANY_UNIT;
+  SINH[j] = Math.sinh(xi);
+  COSH[j] = Math.cosh(xi);
+  STEP_UP[j] = normalCdf(MAP_WIDTH * (SINH[j] as number));
+  STEP_DOWN[j] = normalSf(MAP_WIDTH * (SINH[j] as number));
+}
+// the step rule takes steps narrower than this in units of the spread (σ_v/s); wider ones take the draw rule
+const STEP_WIDTH_LIMIT = 1;
+// A quantile of the standard normal good to 4.5e-4 (Abramowitz & Stegun 26.2.23): only the centre of a rule
+function roughUpperQuantile(q: number): number {
+  if (q > 0.5) return -roughUpperQuantile(1 - q);
+  const t = Math.sqrt(-2 * Math.log(q));
+  return t - (2.515517 + t * (0.802853 + t * 0.010328)) / (1 + t * (1.432788 + t * (0.189269 + t * 0.001308)));
+}
+// the current any-above integrand at the median scale: g(v) = anyOf(share·above(1, 2^v), n)
+function anyAt(v: number): number {
+  return anyOf(integrandShare * lawAbove(1, 2 ** v), integrandCount);
+}
+function anyAtCount(v: number, n: number): number {
+  return anyOf(integrandShare * lawAbove(1, 2 ** v), n);
+}
+
+// The fitted step of g: its level v½ (g = A/2) and width σ_v = A·φ(0)/|g'(v½)|, A = anyOf(share, n) (above → 1 far
+// below the scale); width 0 for a law without one (constant).
+let fitLimit = 0;
+let fitHalf = NaN;
+let fitWidth = 0;
+function fitStep(): void {
+  fitStepOf(integrandCount);
+}
+function fitStepOf(n: number): void {
+  const share = integrandShare;
+  const limit = anyOf(share, n);
+  fitLimit = limit;
+  // above(1, 2^v½) = E with 1 − (1 − share·E)^n = A/2
+  const half = -Math.expm1(Math.log1p(-limit / 2) / n) / share;
+  let slope = 0;
+  fitHalf = 0;
+  if (integrandLaw === GAUSSIAN) {
+    // erfc(a/√2) = 2Q(a) (Abramowitz & Stegun 26.2.29); dE/dv = −2φ(a)·a·ln 2
+    const a = roughUpperQuantile(half / 2);
+    fitHalf = Math.log2(a);
+    slope = 2 * normalPdf(a) * a * LN2;
+  } else if (integrandLaw === LOG_NORMAL) {
+    const s = integrandSpread;
+    const y = roughUpperQuantile(half);
+    fitHalf = s * y - s * s * LN2;
+    slope = normalPdf(y) / s;
+  } else if (integrandLaw === UNIFORM) {
+    const a = SQRT3 * (1 - half);
+    fitHalf = Math.log2(a);
+    slope = (a * LN2) / SQRT3;
+  }
+  const width = (limit * normalPdf(0)) / (n * ((1 - limit / 2) / (1 - share * half)) * share * slope);
+  fitWidth = width > 0 && Number.isFinite(width) && Number.isFinite(fitHalf) ? width : 0;
+}
+
+// The remainders g(v½ − c·σ_v·sinh ξ_j) − A·Φ(c·sinh ξ_j) (c = MAP_WIDTH) depend on the law and the element count
+// only. For n ≥ GRID_COUNT they are read off rows at counts e^{k/8} by the Lagrange polynomial through the four nearest
+// in ln n (Abramowitz & Stegun 25.2.15 for the error term; the remainder at a node is smooth in ln n, and the sums stay
+// within 1e-6 of the converged reference, test/risk/any-above.test.ts): every count a check meets shares a handful of
+// rows. Fewer elements take a row of their own count. Rows live in an open-addressing table on (law, share, element
+// spread, count or −k), cleared when three quarters full, each holding the nodes |ξ| ≤ 4 (NaN: not yet computed;
+// the few sums that reach further compute their outer nodes afresh) and its count's fitted step. A table of a
+// mathematical function: its values never depend on what the process computed before.
+const REMAINDER_SLOTS = 1024;
+const REMAINDER_LIMIT = (REMAINDER_SLOTS >> 2) * 3;
+const REMAINDER_HALF = 4 * ANY_UNIT;
+const REMAINDER_KEYS = new Float64Array(REMAINDER_SLOTS * 4).fill(NaN);
+// per slot: the row's count, v½, σ_v and A
+const REMAINDER_FITS = new Float64Array(REMAINDER_SLOTS * 4);
+const REMAINDER_ROWS: Float64Array[] = [];
+const REMAINDER_KEY = new Float64Array(4);
+const REMAINDER_KEY_WORDS = new Int32Array(REMAINDER_KEY.buffer);
+let remainderCount = 0;
+const GRID_COUNT = 64;
+const GRID_PER_LN = 8;
+// the rows of the current sum (one, or four with Lagrange weights)
+const ROW_SLOTS = new Int32Array(4);
+const ROW_WEIGHTS = new Float64Array(4);
+let rowCount = 1;
+let row0: Float64Array = STEP_UP;
+let row1: Float64Array = STEP_UP;
+let row2: Float64Array = STEP_UP;
+let row3: Float64Array = STEP_UP;
+// the slot of the row keyed by `countKey` (the count, or −k for grid row k), made with count n if new
+function rowSlot(countKey: number, n: number): number {
+  REMAINDER_KEY[0] = integrandLaw;
+  REMAINDER_KEY[1] = integrandShare;
+  REMAINDER_KEY[2] = countKey;
+  REMAINDER_KEY[3] = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < 8; i++) hash = Math.imul(hash ^ (REMAINDER_KEY_WORDS[i] as number), 0x01000193);
+  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
+  let slot = (hash ^ (hash >>> 12)) & (REMAINDER_SLOTS - 1);
+  for (;;) {
+    const at = slot * 4;
+    const first = REMAINDER_KEYS[at] as number;
+    if (first !== first) break;
+    if (first === REMAINDER_KEY[0] && REMAINDER_KEYS[at + 1] === REMAINDER_KEY[1] && REMAINDER_KEYS[at + 2] === REMAINDER_KEY[2] && REMAINDER_KEYS[at + 3] === REMAINDER_KEY[3]) {
+      return slot;
+    }
+    slot = (slot + 1) & (REMAINDER_SLOTS - 1);
+  }
+  if (remainderCount >= REMAINDER_LIMIT) {
+    REMAINDER_KEYS.fill(NaN);
+    remainderCount = 0;
+    return -1;
+  }
+  REMAINDER_KEYS.set(REMAINDER_KEY, slot * 4);
+  remainderCount++;
+  let row = REMAINDER_ROWS[slot];
+  if (row === undefined) {
+    row = new Float64Array(2 * REMAINDER_HALF + 1);
+    REMAINDER_ROWS[slot] = row;
+  }
+  row.fill(NaN);
+  // the row's own fitted step, keeping the current one
+  const half = fitHalf;
+  const width = fitWidth;
+  const limit = fitLimit;
+  fitStepOf(n);
+  REMAINDER_FITS[slot * 4] = n;
+  REMAINDER_FITS[slot * 4 + 1] = fitHalf;
+  REMAINDER_FITS[slot * 4 + 2] = fitWidth;
+  REMAINDER_FITS[slot * 4 + 3] = fitLimit;
+  fitHalf = half;
+  fitWidth = width;
+  fitLimit = limit;
+  return slot;
+}
+// pick the rows of the current law and count (fitStep set)
+function remainderRow(): void {
+  const n = integrandCount;
+  if (n >= GRID_COUNT) {
+    const position = Math.log(n) * GRID_PER_LN;
+    const first = Math.floor(position) - 1;
+    const t = position - first;
+    // Lagrange weights through points 0 … 3 at t
+    ROW_WEIGHTS[0] = (-(t - 1) * (t - 2) * (t - 3)) / 6;
+    ROW_WEIGHTS[1] = (t * (t - 2) * (t - 3)) / 2;
+    ROW_WEIGHTS[2] = (-t * (t - 1) * (t - 3)) / 2;
+    ROW_WEIGHTS[3] = (t * (t - 1) * (t - 2)) / 6;
+    for (let k = 0; k < 4; k++) {
+      let slot = rowSlot(-(first + k), Math.exp((first + k) / GRID_PER_LN));
+      // the table was full and cleared: the rows found so far are gone, start again
+      if (slot < 0) {
+        k = -1;
+        continue;
+      }
+      ROW_SLOTS[k] = slot;
+    }
+    rowCount = 4;
+  } else {
+    let slot = rowSlot(n, n);
+    if (slot < 0) slot = rowSlot(n, n);
+    ROW_SLOTS[0] = slot;
+    ROW_WEIGHTS[0] = 1;
+    rowCount = 1;
+  }
+  row0 = REMAINDER_ROWS[ROW_SLOTS[0] as number] as Float64Array;
+  row1 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[1] as number] as Float64Array) : row0;
+  row2 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[2] as number] as Float64Array) : row0;
+  row3 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[3] as number] as Float64Array) : row0;
+}
+// the remainder of row r (slot `slot`) at node j
+function rowValue(row: Float64Array, slot: number, j: number): number {
+  const at = j + REMAINDER_HALF;
+  const inside = at >= 0 && at <= 2 * REMAINDER_HALF;
+  let value = inside ? (row[at] as number) : NaN;
+  if (value !== value) {
+    const index = j < 0 ? -j : j;
+    const u = j < 0 ? -(SINH[index] as number) : (SINH[index] as number);
+    const fit = slot * 4;
+    value =
+      anyAtCount((REMAINDER_FITS[fit + 1] as number) - MAP_WIDTH * (REMAINDER_FITS[fit + 2] as number) * u, REMAINDER_FITS[fit] as number) -
+      (REMAINDER_FITS[fit + 3] as number) * (j < 0 ? (STEP_DOWN[index] as number) : (STEP_UP[index] as number));
+    if (inside) row[at] = value;
+  }
+  return value;
+}
+function remainderAt(j: number): number {
+  if (rowCount === 1) return rowValue(row0, ROW_SLOTS[0] as number, j);
+  return (
+    (ROW_WEIGHTS[0] as number) * rowValue(row0, ROW_SLOTS[0] as number, j) +
+    (ROW_WEIGHTS[1] as number) * rowValue(row1, ROW_SLOTS[1] as number, j) +
+    (ROW_WEIGHTS[2] as number) * rowValue(row2, ROW_SLOTS[2] as number, j) +
+    (ROW_WEIGHTS[3] as number) * rowValue(row3, ROW_SLOTS[3] as number, j)
+  );
+}
+
+// terms below this share of the sum end the walk outward and are not refined
+const SUM_DIGITS = 1e-13;
+// the first level's terms, by node number k (ξ = k/2) from −TERMS_HALF
+const TERMS_HALF = Math.ceil(ANY_TABLE / ANY_FIRST_STRIDE) + 1;
+const TERMS = new Float64Array(2 * TERMS_HALF + 1);
+// the step rule's sum and its derivative in x, of the last stepSum
+let stepSlope = 0;
+// Σ_j cosh ξ_j·σ·φ(z_j)·r_j·Δξ + the closed part, z_j = z_c + σ·sinh ξ_j (and with `slope`, the same sum's derivative
+// in x: dz_j/dx = 1/s, dφ(z)/dz = −z·φ(z)); fitStep and remainderRow set for the current law.
+function stepSum(x: number, s: number, slope: boolean): number {
+  const centre = (x - fitHalf) / s;
+  const sigma = (MAP_WIDTH * fitWidth) / s;
+  const spreadWidth = Math.sqrt(s * s + fitWidth * fitWidth);
+  const closed = fitLimit * normalSf((x - fitHalf) / spreadWidth);
+  let stride = ANY_FIRST_STRIDE;
+  let sum = 0;
+  let derivative = 0;
+  let high = 0;
+  let low = 0;
+  // outward from the step's centre, each way until two terms in a row are below SUM_DIGITS of the sum past |sinh ξ| = 3
+  for (let direction = 1; direction >= -1; direction -= 2) {
+    let small = 0;
+    for (let k = direction > 0 ? 0 : 1; ; k++) {
+      const index = k * stride;
+      if (index >= ANY_TABLE) {
+        if (direction > 0) high = k - 1;
+        else low = -(k - 1);
+        break;
+      }
+      const u = direction > 0 ? (SINH[index] as number) : -(SINH[index] as number);
+      const z = centre + sigma * u;
+      const term = (COSH[index] as number) * normalPdf(z) * remainderAt(direction * index);
+      TERMS[direction * k + TERMS_HALF] = term;
+      sum += term;
+      if (slope) derivative -= z * term;
+      if (Math.abs(term) * sigma * 0.5 <= SUM_DIGITS * Math.abs(closed + 0.5 * sigma * sum)) {
+        if (++small >= 2 && (SINH[index] as number) > 3) {
+          if (direction > 0) high = k;
+          else low = -k;
+          break;
+        }
+      } else small = 0;
+    }
+  }
+  let step = (stride / ANY_UNIT) * sigma;
+  let total = step * sum;
+  // the refinements add nodes only between the first level's nodes that carry SUM_DIGITS of the sum
+  const floor = (SUM_DIGITS * Math.abs(closed + total)) / step;
+  while (low < 0 && !(Math.abs(TERMS[low + TERMS_HALF] as number) > floor)) low++;
+  while (high > 0 && !(Math.abs(TERMS[high + TERMS_HALF] as number) > floor)) high--;
+  low = Math.max(low - 1, -(ANY_TABLE - 1) / stride);
+  high = Math.min(high + 1, (ANY_TABLE - 1) / stride);
+  let totalDerivative = step * derivative;
+  let lastChange = 1;
+  // a few elements make a step whose far side falls double-exponentially, where the sums converge late: they take the
+  // plain tolerance
+  const geometric = integrandCount >= GEOMETRIC_COUNT;
+  while (stride > 1) {
+    let middles = 0;
+    let middleDerivative = 0;
+    for (let k = low; k < high; k++) {
+      const j = k * stride + (stride >> 1);
+      const index = j < 0 ? -j : j;
+      const z = centre + sigma * (j < 0 ? -(SINH[index] as number) : (SINH[index] as number));
+      const term = (COSH[index] as number) * normalPdf(z) * remainderAt(j);
+      middles += term;
+      if (slope) middleDerivative -= z * term;
+    }
+    const refined = 0.5 * total + 0.5 * step * middles;
+    totalDerivative = 0.5 * totalDerivative + 0.5 * step * middleDerivative;
+    const change = Math.abs(refined - total) / Math.abs(closed + refined);
+    total = refined;
+    stride >>= 1;
+    step *= 0.5;
+    low *= 2;
+    high *= 2;
+    // converging geometrically (each change about the square of the one before, in relative terms), the last sum is
+    // good to about the square of its change
+    if (change <= ANY_TOLERANCE || (geometric && change <= ANY_GEOMETRIC && change <= lastChange * Math.sqrt(lastChange))) break;
+    lastChange = change;
+  }
+  if (slope) stepSlope = totalDerivative / s - (fitLimit * normalPdf((x - fitHalf) / spreadWidth)) / spreadWidth;
+  return closed + total;
+}
+
+// The uniform law: g = 0 where a = 2^v ≥ √3, i.e. for z below z_k = (x − log2 √3)/s; above it g is smooth, so the
+// sum runs over w = z − z_k > 0 with w = τ·exp(ξ − e^{−ξ}) (double-exponential decay at the kink, the exp-sinh rule
+// of Takahasi & Mori 1974, from memory), τ the scale on which g rises or φ falls, halving the step as above.
+function uniformAnyAbove(x: number, s: number, limit: number): number {
+  const kink = (x - Math.log2(SQRT3)) / s;
+  const rise = integrandCount * integrandShare * s * LN2;
+  const tau = Math.min(1, 1 / Math.max(1, kink), rise > 0 ? 1 / rise : 1);
+  // the walk starts where w reaches the draws' centre when the kink lies below it
+  const origin = kink < 0 ? Math.log(1 - kink / tau) : 0;
+  let stride = 0.5;
+  let sum = uniformTerm(origin, x, s, kink, tau);
+  let high = 0;
+  let low = 0;
+  for (let direction = 1; direction >= -1; direction -= 2) {
+    let small = 0;
+    for (let k = 1; k < 400; k++) {
+      const t = uniformTerm(origin + direction * k * stride, x, s, kink, tau);
+      sum += t;
+      if (k === 399 || (Math.abs(t) <= 1e-17 * Math.abs(sum) && ++small >= 2 && (direction < 0 || (k > 4 && kink + tau * Math.exp(origin + k * stride) > 0)))) {
+        if (direction > 0) high = k;
+        else low = -k;
+        break;
+      }
+      if (Math.abs(t) > 1e-17 * Math.abs(sum)) small = 0;
+    }
+  }
+  let total = stride * sum;
+  for (let level = 1; level < 6; level++) {
+    let middles = 0;
+    for (let k = low; k < high; k++) middles += uniformTerm(origin + (k + 0.5) * stride, x, s, kink, tau);
+    const refined = 0.5 * total + 0.5 * stride * middles;
+    const change = Math.abs(refined - total);
+    total = refined;
+    stride *= 0.5;
+    low *= 2;
+    high *= 2;
+    if (change <= ANY_TOLERANCE * Math.abs(total)) break;
+  }
+  return Math.min(limit, Math.max(0, total));
+}
+function uniformTerm(xi: number, x: number, s: number, kink: number, tau: number): number {
+  const decay = Math.exp(-xi);
+  const w = tau * Math.exp(xi - decay);
+  const z = kink + w;
+  return w * (1 + decay) * normalPdf(z) * anyAt(x - s * z);
+}
+
+// Which rule sums the current any-above integrand at spread s: STEP_RULE (fitStep and remainderRow then set),
+// DRAW_RULE (drawSum), or the closed form of the constant law (CLOSED_RULE).
+const STEP_RULE = 0;
+const DRAW_RULE = 1;
+const CLOSED_RULE = 2;
+const UNIFORM_RULE = 3;
+function anyRule(s: number): number {
+  if (integrandLaw === CONSTANT) return CLOSED_RULE;
+  fitStep();
+  if (integrandLaw === UNIFORM) return UNIFORM_RULE;
+  if (!(fitWidth > 0) || !(fitWidth < STEP_WIDTH_LIMIT * s)) return DRAW_RULE;
+  remainderRow();
+  return STEP_RULE;
+}
+
+// I(x) of the current any-above integrand at spread s > 0 (x = log2(t/rms), finite), by its rule.
+function anyAboveSum(x: number, s: number, rule: number): number {
+  const limit = fitLimit;
+  if (!(limit > 0)) return 0;
+  switch (rule) {
+    case CLOSED_RULE:
+      // every element equals the drawn scale: the event is z ≥ x/s
+      return limit * normalSf(x / s);
+    case UNIFORM_RULE:
+      // the kink far below the draws carries no weight, and g is smooth where they are
+      return (x - Math.log2(SQRT3)) / s > -9 ? uniformAnyAbove(x, s, limit) : drawAt(x, s);
+    case STEP_RULE:
+      return Math.min(limit, Math.max(0, stepSum(x, s, false)));
+    default:
+      return drawAt(x, s);
+  }
+}
+// the draw rule's sum at rms 1, t = 2^x
+function drawAt(x: number, s: number): number {
+  integrandT = 2 ** x;
+  return drawSum(1, s);
+}
+
+// The level x where the any-above sum at spread s equals p (0 < p < A), on the sum itself so that the two agree:
+// Newton steps on log I from the fitted step's own crossing (the step rule gives I's derivative with its sum; the
+// other rules take secant steps, the first with the fitted step's slope), safeguarded by the bracket the signs give (I falls as x grows), until
+// the sum at the level is p to 1e-9 relative.
+function anyAboveLevel(s: number, p: number): number {
+  const rule = anyRule(s);
+  const limit = rule === CLOSED_RULE ? anyOf(integrandShare, integrandCount) : fitLimit;
+  if (rule === CLOSED_RULE) {
+    fitLimit = limit;
+    fitHalf = 0;
+    fitWidth = 0;
+  }
+  const width = Math.sqrt(s * s + fitWidth * fitWidth);
+  let x = fitHalf + width * roughUpperQuantile(p / limit);
+  const target = Math.log(p);
+  let low = -Infinity;
+  let high = Infinity;
+  let previousX = NaN;
+  let previousGap = NaN;
+  for (let iteration = 0; iteration < 100; iteration++) {
+    const value = rule === STEP_RULE ? Math.min(limit, stepSum(x, s, true)) : anyAboveSum(x, s, rule);
+    const gap = value > 0 ? Math.log(value) - target : -Infinity;
+    if (Math.abs(gap) <= 1e-9) return x;
+    if (gap > 0) low = x;
+    else high = x;
+    let slope: number;
+    if (rule === STEP_RULE && value > 0) slope = stepSlope / value;
+    else if (Number.isFinite(previousGap) && Number.isFinite(gap) && previousGap !== gap) slope = (gap - previousGap) / (x - previousX);
+    else {
+      // the fitted step's slope of log I: −φ(y)/(Q(y)·width) at y = (x − v½)/width
+      const y = (x - fitHalf) / width;
+      const tail = normalSf(y);
+      slope = tail > 0 ? -normalPdf(y) / (tail * width) : -y / width;
+    }
+    let next = Number.isFinite(gap) && slope < 0 ? x - gap / slope : NaN;
+    if (!(next > low && next < high)) {
+      if (Number.isFinite(low) && Number.isFinite(high)) next = 0.5 * (low + high);
+      else next = Number.isFinite(low) ? low + width : high - width;
+    }
+    if (Math.abs(next - x) <= 4e-16 * Math.max(1, Math.abs(x))) return next;
+    previousX = x;
+    previousGap = gap;
+    x = next;
+  }
+  return x;
 }

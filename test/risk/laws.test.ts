@@ -66,7 +66,8 @@ function apart(actual: number, expected: number): number {
 describe("draw sums of the element laws", () => {
   // the monotone sum (exceedance probabilities, closures) stops at 1e-9 of the sum and of its complement; the
   // Gaussian shares read off the shared rows are held to the direct sums in "read off the shared lattices stay
-  // within 2e-6 of the direct rule" below
+  // within 2e-6 of the direct rule" below. The any-above sums of the element laws no longer take this rule (it does
+  // not converge on their steps): test/risk/any-above.test.ts holds them to the definition's integral
   it("stay within 2e-9 of the rule's sum, relative to the value and to its complement", () => {
     let worst = 0;
     let worstCase: unknown = null;
@@ -84,7 +85,6 @@ describe("draw sums of the element laws", () => {
       for (const positiveOnly of [false, true]) {
         const share = positiveOnly ? law.positiveShare : 1;
         const f = (r: number): number => anyOf(share * law.above(r, t), n);
-        note("law any", lawOverDraws(profile, "any-above", t, positiveOnly), ruleOverDraws(rms, log2Spread, f), profile, t);
         note("closure any", overDraws(rms, log2Spread, f), ruleOverDraws(rms, log2Spread, f), profile, t);
       }
       for (const measure of ["below", "energy-below"] as const) {
@@ -109,12 +109,17 @@ describe("draw sums of the element laws", () => {
     }
   });
 
-  it("without closures equal the bounds of the element law's closures bit for bit", () => {
+  // the any-above sums integrate every draw, so their upper bound adds the mass beyond ±9 (2.3e-19) to the closures'
+  it("without closures equal the bounds of the element law's closures bit for bit (any-above: plus the mass beyond ±9)", () => {
     for (const { profile, t } of sweep()) {
       const law = elementLaw(profile);
       const n = nonzeroElements(profile);
       const { rms, log2Spread } = profile;
-      expect(lawOverDrawsBounds(profile, "any-above", t, false)).toEqual(overDrawsBounds(rms, log2Spread, (r) => anyOf(law.above(r, t), n)));
+      const [low, high] = lawOverDrawsBounds(profile, "any-above", t, false);
+      const [closureLow, closureHigh] = overDrawsBounds(rms, log2Spread, (r) => anyOf(law.above(r, t), n));
+      expect(low).toBe(closureLow);
+      expect(high).toBeGreaterThanOrEqual(closureHigh);
+      expect(high - closureHigh).toBeLessThanOrEqual(closureLow === closureHigh ? 0 : 2.31e-19);
       expect(lawOverDrawsBounds(profile, "energy-below", t, true)).toEqual(overDrawsInnerBounds(rms, log2Spread, (r) => law.energyBelow(r, t)));
     }
   });
@@ -123,30 +128,14 @@ describe("draw sums of the element laws", () => {
   // off the shared rows in the last test of this block. The searches start from different levels and step
   // differently (any-above from the step of g shifted by the spread, in single lattice points), so this also holds
   // that the bracket found does not depend on the start
+  // (the any-above levels are solved on the any-above sums themselves: test/risk/any-above.test.ts)
   it("lattice crossings equal mixtureCrossing with the law's closures", () => {
     for (const { profile } of sweep()) {
       if (profile.shape === "constant" || (profile.shape === "log-normal" && !(profile.elementLog2Spread! > 0))) continue;
       const { bound: _bound, ...unbounded } = profile;
       const law = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
-      const n = nonzeroElements(profile);
-      for (const p of [0.3, 1e-3, 1e-9]) {
-        expect(lawMixtureCrossing(profile, "any-above", p)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), n), profile.log2Spread, p, true));
-      }
       for (const p of [0.2, 1e-2, 1e-5]) {
         expect(lawMixtureCrossing(profile, "below", p, false)).toBe(mixtureCrossing((v) => law.below(1, 2 ** v), profile.log2Spread, p, false));
-      }
-    }
-    // spreads near 0, where g's own step is as wide as the draws or wider (a log-normal law of nearly constant
-    // elements, a handful of elements)
-    for (const log2Spread of [1e-12, 0.01, 0.2]) {
-      for (const elements of [3, 2304, 1e6]) {
-        for (const profile of [
-          { elements, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread },
-          { elements, zeroFraction: 0, shape: "log-normal", rms: 1, log2Spread, elementLog2Spread: 1e-7 },
-        ] satisfies MagnitudeProfile[]) {
-          const law = elementLaw(profile);
-          expect(lawMixtureCrossing(profile, "any-above", 1e-3)).toBe(mixtureCrossing((v) => anyOf(law.above(1, 2 ** v), elements), log2Spread, 1e-3, true));
-        }
       }
     }
   });

@@ -1,0 +1,179 @@
+import fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile } from "../../src/magnitude/types.js";
+import { erfc as preciseErfc, normalPdf } from "../../src/numeric/normal.js";
+import { lawMixtureCrossing, lawOverDraws, lawOverDrawsBounds } from "../../src/risk/laws.js";
+
+// The any-above draw sum by its definition: E_z[anyOf(share·above(rms·2^(spread·z), t), n)], z ~ N(0, 1) (the
+// probability that at least one of n independent elements passes t, averaged over the log-normal draws of the scale),
+// summed here independently of src/risk: the element laws written out again (Gaussian tail erfc(a/√2), Abramowitz &
+// Stegun 26.2.29, with src/numeric's erfc, A&S 7.1.6 and its continued fraction, not the risk module's fast fit;
+// uniform on ±√3·r; log-normal with log2|x| ~ N(log2 r − s²·ln 2, s²); constant magnitudes), 1 − (1 − q)^n by
+// expm1/log1p, and the integral over z by the trapezoid rule at step 1/1024 on [−10, 10] (the mass beyond is
+// 1.5e-23, A&S 26.2.29). The uniform and constant laws are 0 below a kink z_k; there the integral runs from the kink
+// over w = z − z_k = e^τ (τ at step 1/256 from −45), which resolves a rise however steep right at the kink.
+type Law = "gaussian" | "uniform" | "log-normal" | "constant";
+const LN2 = Math.LN2;
+function tail(law: Law, ratio: number, elementSpread: number): number {
+  // P(|x| ≥ t) at r = 1, t = ratio
+  switch (law) {
+    case "gaussian":
+      return preciseErfc(ratio / Math.SQRT2);
+    case "uniform":
+      return Math.max(0, 1 - ratio / Math.sqrt(3));
+    case "log-normal": {
+      const y = (Math.log2(ratio) + elementSpread * elementSpread * LN2) / elementSpread;
+      return 0.5 * preciseErfc(y / Math.SQRT2);
+    }
+    case "constant":
+      return ratio <= 1 ? 1 : 0;
+  }
+}
+function anyOfReference(q: number, n: number): number {
+  if (!(q > 0)) return 0;
+  if (q >= 1) return 1;
+  return -Math.expm1(n * Math.log1p(-q));
+}
+function reference(law: Law, share: number, n: number, spread: number, x: number, elementSpread = 0): number {
+  const g = (z: number): number => anyOfReference(share * tail(law, 2 ** (x - spread * z), elementSpread), n);
+  const kink = law === "uniform" ? (x - Math.log2(Math.sqrt(3))) / spread : law === "constant" ? x / spread : -Infinity;
+  if (kink > -10) {
+    if (kink >= 10) return 0;
+    let sum = 0;
+    const step = 1 / 256;
+    for (let tau = -45; ; tau += step) {
+      const w = Math.exp(tau);
+      if (kink + w > 10) break;
+      // just above the kink (the constant law steps there)
+      sum += step * w * normalPdf(kink + w) * g(kink + w * (1 + 1e-15) + 1e-300);
+    }
+    return sum;
+  }
+  const step = 1 / 1024;
+  let sum = 0;
+  for (let i = 0; i <= 20 * 1024; i++) {
+    const z = -10 + i * step;
+    sum += (i === 0 || i === 20 * 1024 ? 0.5 : 1) * step * normalPdf(z) * g(z);
+  }
+  return sum;
+}
+
+// The goal: 1e-6 relative, or 1e-12 absolute for tiny values
+function miss(actual: number, expected: number): number {
+  const difference = Math.abs(actual - expected);
+  return Math.min(difference / expected, difference / 1e-6);
+}
+
+interface Case {
+  law: Law;
+  shape: MagnitudeProfile["shape"];
+  positiveOnly: boolean;
+  share: number;
+  elementSpread: number;
+}
+const CASES: Case[] = [
+  { law: "gaussian", shape: "gaussian", positiveOnly: false, share: 1, elementSpread: 0 },
+  { law: "gaussian", shape: "gaussian", positiveOnly: true, share: 0.5, elementSpread: 0 },
+  { law: "gaussian", shape: "half-gaussian", positiveOnly: true, share: 1, elementSpread: 0 },
+  { law: "gaussian", shape: "bounded", positiveOnly: false, share: 1, elementSpread: 0 },
+  { law: "uniform", shape: "uniform", positiveOnly: false, share: 1, elementSpread: 0 },
+  { law: "uniform", shape: "uniform", positiveOnly: true, share: 0.5, elementSpread: 0 },
+  { law: "log-normal", shape: "log-normal", positiveOnly: false, share: 1, elementSpread: 0.3 },
+  { law: "log-normal", shape: "log-normal", positiveOnly: true, share: 0.5, elementSpread: 1.3 },
+  { law: "constant", shape: "constant", positiveOnly: false, share: 1, elementSpread: 0 },
+];
+function profileOf(c: Case, n: number, spread: number, rms: number): MagnitudeProfile {
+  const profile: MagnitudeProfile = { elements: 2 * n, zeroFraction: 0.5, shape: c.shape, rms, log2Spread: spread };
+  if (c.shape === "log-normal") profile.elementLog2Spread = c.elementSpread;
+  // far above every threshold of the sweep: the law below it is the Gaussian's
+  if (c.shape === "bounded") profile.bound = rms * 2 ** 40;
+  return profile;
+}
+
+describe("any-above draw sums", () => {
+  it("stay within 1e-6 (relative, or 1e-12 absolute) of the definition's integral over laws, spreads, counts and thresholds", () => {
+    let worst = 0;
+    let worstCase: unknown = null;
+    let compared = 0;
+    for (const c of CASES) {
+      for (const n of [1, 3, 97.5, 46012.4, 3.3e6, 1e9, 1e12]) {
+        for (const spread of [0.05, 0.4, 1.3, 3]) {
+          for (const x of [-2, 0, 0.7, 1.5, 2.4, 3.5, 5, 8]) {
+            const expected = reference(c.law, c.share, n, spread, x, c.elementSpread);
+            const rms = 0.37;
+            const actual = lawOverDraws(profileOf(c, n, spread, rms), "any-above", rms * 2 ** x, c.positiveOnly);
+            const m = expected > 0 ? miss(actual, expected) : Math.abs(actual) / 1e-6;
+            compared++;
+            if (m > worst) {
+              worst = m;
+              worstCase = { ...c, n, spread, x, expected, actual };
+            }
+          }
+        }
+      }
+    }
+    expect(compared).toBeGreaterThan(1500);
+    if (worst >= 1e-6) console.log(JSON.stringify(worstCase));
+    expect(worst).toBeLessThan(1e-6);
+  });
+
+  // The level search solves the same sums: the probability at the returned level is p (the consistency the predicted
+  // max needs; its accuracy then is the sums' own, above)
+  it("levels of lawMixtureCrossing give back p within 1e-8 relative (or bracket it between neighbouring doubles)", () => {
+    let worst = 0;
+    for (const c of CASES) {
+      if (c.positiveOnly || c.law === "constant") continue;
+      for (const n of [1, 7, 2304, 46012.4, 1e9, 1e12]) {
+        // spreads near 0 too, where g's own step is as wide as the draws or wider
+        for (const spread of [1e-12, 0.01, 0.2, 0.9, 2.25, 3]) {
+          const profile = profileOf(c, n, spread, 1);
+          delete profile.bound;
+          // a log-normal law of nearly constant elements
+          if (c.law === "log-normal" && spread === 0.01) profile.elementLog2Spread = 1e-7;
+          for (const p of [0.3, 1e-3, 1e-9]) {
+            const level = lawMixtureCrossing(profile, "any-above", p);
+            const back = lawOverDraws(profile, "any-above", 2 ** level);
+            // where the sum moves by more than that between neighbouring doubles (a spread of 1e-12 over a steep
+            // step), p lies between the sums at the level's neighbours
+            const ulp = 4 * Number.EPSILON * Math.max(1, Math.abs(level));
+            const below = lawOverDraws(profile, "any-above", 2 ** (level - ulp));
+            const above = lawOverDraws(profile, "any-above", 2 ** (level + ulp));
+            worst = Math.max(worst, below >= p && above <= p ? Math.min(1e-9, Math.abs(back - p) / p) : Math.abs(back - p) / p);
+          }
+        }
+      }
+    }
+    expect(worst).toBeLessThan(1e-8);
+  });
+
+  it("fall as the threshold rises, stay in [0, 1] and within their extreme-draw bounds (property)", () => {
+    const shapes = ["gaussian", "half-gaussian", "uniform", "log-normal", "constant"] as const;
+    fc.assert(
+      fc.property(
+        fc.constantFrom(...shapes),
+        fc.double({ min: 0, max: 12, noNaN: true }),
+        fc.double({ min: 0.001, max: 3, noNaN: true }),
+        fc.double({ min: -4, max: 10, noNaN: true }),
+        fc.double({ min: 0.01, max: 2, noNaN: true }),
+        fc.boolean(),
+        (shape, log10n, spread, x, step, positiveOnly) => {
+          const profile: MagnitudeProfile = { elements: 10 ** log10n, zeroFraction: 0, shape, rms: 1.7, log2Spread: spread };
+          if (shape === "log-normal") profile.elementLog2Spread = 0.8;
+          const t = 1.7 * 2 ** x;
+          const lower = lawOverDraws(profile, "any-above", t, positiveOnly);
+          const upper = lawOverDraws(profile, "any-above", t * 2 ** step, positiveOnly);
+          expect(lower).toBeGreaterThanOrEqual(0);
+          expect(lower).toBeLessThanOrEqual(1);
+          // monotone up to the sums' own accuracy
+          expect(upper).toBeLessThanOrEqual(lower * (1 + 1e-6) + 1e-12);
+          if (!positiveOnly) {
+            const [low, high] = lawOverDrawsBounds(profile, "any-above", t, false);
+            expect(lower).toBeGreaterThanOrEqual(low * (1 - 1e-6));
+            expect(lower).toBeLessThanOrEqual(high * (1 + 1e-6) + 1e-18);
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
+});
