@@ -1401,6 +1401,7 @@ function rowSlot(countKey: number, n: number): number {
   if (remainderCount >= REMAINDER_LIMIT) {
     REMAINDER_KEYS.fill(NaN);
     remainderCount = 0;
+    remainderClears++;
     return -1;
   }
   REMAINDER_KEYS.set(REMAINDER_KEY, slot * 4);
@@ -1428,6 +1429,13 @@ function rowSlot(countKey: number, n: number): number {
 // pick the rows of the current law and count (fitStep set)
 function remainderRow(): void {
   const n = integrandCount;
+  const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
+  if (COMBINED_KEY[0] === integrandLaw && COMBINED_KEY[1] === integrandShare && COMBINED_KEY[2] === n && COMBINED_KEY[3] === elementSpread && combinedRows === remainderCount + remainderClears * REMAINDER_SLOTS) return;
+  COMBINED.fill(NaN);
+  COMBINED_KEY[0] = integrandLaw;
+  COMBINED_KEY[1] = integrandShare;
+  COMBINED_KEY[2] = n;
+  COMBINED_KEY[3] = elementSpread;
   if (n >= GRID_COUNT) {
     const position = Math.log(n) * GRID_PER_LN;
     const first = Math.floor(position) - 1;
@@ -1458,7 +1466,13 @@ function remainderRow(): void {
   row1 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[1] as number] as Float64Array) : row0;
   row2 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[2] as number] as Float64Array) : row0;
   row3 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[3] as number] as Float64Array) : row0;
+  combinedRows = remainderCount + remainderClears * REMAINDER_SLOTS;
 }
+// the key of COMBINED, and the table's state when it was made (a row made or the table cleared since may have taken a
+// slot of its rows)
+const COMBINED_KEY = new Float64Array(4).fill(NaN);
+let combinedRows = -1;
+let remainderClears = 0;
 // the remainder of row r (slot `slot`) at node j
 function rowValue(row: Float64Array, slot: number, j: number): number {
   const at = j + REMAINDER_HALF;
@@ -1475,14 +1489,23 @@ function rowValue(row: Float64Array, slot: number, j: number): number {
   }
   return value;
 }
+// the interpolated remainders of the current count, kept while the count stays (its sums at several thresholds and
+// a level search's steps share them); NaN: not yet combined
+const COMBINED = new Float64Array(2 * REMAINDER_HALF + 1);
 function remainderAt(j: number): number {
   if (rowCount === 1) return rowValue(row0, ROW_SLOTS[0] as number, j);
-  return (
-    (ROW_WEIGHTS[0] as number) * rowValue(row0, ROW_SLOTS[0] as number, j) +
-    (ROW_WEIGHTS[1] as number) * rowValue(row1, ROW_SLOTS[1] as number, j) +
-    (ROW_WEIGHTS[2] as number) * rowValue(row2, ROW_SLOTS[2] as number, j) +
-    (ROW_WEIGHTS[3] as number) * rowValue(row3, ROW_SLOTS[3] as number, j)
-  );
+  const at = j + REMAINDER_HALF;
+  const inside = at >= 0 && at <= 2 * REMAINDER_HALF;
+  let value = inside ? (COMBINED[at] as number) : NaN;
+  if (value !== value) {
+    value =
+      (ROW_WEIGHTS[0] as number) * rowValue(row0, ROW_SLOTS[0] as number, j) +
+      (ROW_WEIGHTS[1] as number) * rowValue(row1, ROW_SLOTS[1] as number, j) +
+      (ROW_WEIGHTS[2] as number) * rowValue(row2, ROW_SLOTS[2] as number, j) +
+      (ROW_WEIGHTS[3] as number) * rowValue(row3, ROW_SLOTS[3] as number, j);
+    if (inside) COMBINED[at] = value;
+  }
+  return value;
 }
 
 // terms below this share of the sum end the walk outward and are not refined
@@ -1516,7 +1539,9 @@ function stepSum(x: number, s: number, slope: boolean): number {
       }
       const u = direction > 0 ? (SINH[index] as number) : -(SINH[index] as number);
       const z = centre + sigma * u;
-      const term = (COSH[index] as number) * normalPdf(z) * remainderAt(direction * index);
+      // far past the step both g and the fitted step are their limits exactly: no weight to take
+      const remainder = remainderAt(direction * index);
+      const term = remainder === 0 ? 0 : (COSH[index] as number) * normalPdf(z) * remainder;
       TERMS[direction * k + TERMS_HALF] = term;
       sum += term;
       if (slope) derivative -= z * term;
@@ -1549,7 +1574,8 @@ function stepSum(x: number, s: number, slope: boolean): number {
       const j = k * stride + (stride >> 1);
       const index = j < 0 ? -j : j;
       const z = centre + sigma * (j < 0 ? -(SINH[index] as number) : (SINH[index] as number));
-      const term = (COSH[index] as number) * normalPdf(z) * remainderAt(j);
+      const remainder = remainderAt(j);
+      const term = remainder === 0 ? 0 : (COSH[index] as number) * normalPdf(z) * remainder;
       middles += term;
       if (slope) middleDerivative -= z * term;
     }
