@@ -383,8 +383,10 @@ function measureKind(measure: "any-above" | "below" | "energy-below"): number {
 /**
  * {@link overDraws} of a profile's element law at threshold t, without a closure: `anyOf(share·above(r, t), n)`
  * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
- * The Gaussian shares below are read off rows shared by every threshold (within 2e-6 of the rule's sum, see
- * gaussianTableValue); everything else equals, bit for bit, overDraws with those closures ({@link directLawOverDraws}).
+ * The any-above sums follow the step of many elements (see anyAboveSum: within 1e-6 of the draw integral, not the
+ * draw rule's sums); the Gaussian shares below are read off rows shared by every threshold (within 2e-6 of the rule's
+ * sum, see gaussianTableValue); the other shares equal, bit for bit, overDraws with those closures
+ * ({@link directLawOverDraws}).
  */
 export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
   const kind = measureKind(measure);
@@ -400,7 +402,7 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
 
 /**
  * {@link lawOverDraws} by the draw rule itself, without the shared rows of the Gaussian shares: the direct
- * method the rows' interpolation is held to in the tests.
+ * method the rows' interpolation is held to in the tests (the any-above sums are lawOverDraws' own).
  */
 export function directLawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
   const kind = measureKind(measure);
@@ -1110,7 +1112,8 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
  * g(v) = anyOf(above(1, 2^v), n) (`measure` "any-above", decreasing) or below(1, 2^v) ("below", increasing), the
  * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian"). The Gaussian
  * "below" mixture is read off the shared rows of the draw rule's sums where they cover the spread; `viaRows` false
- * sums it on the search's own lattice (the reference the rows are held to in the tests).
+ * sums it on the search's own lattice (the reference the rows are held to in the tests). The "any-above" level is
+ * solved on {@link lawOverDraws}' any-above sums themselves (anyAboveLevel), so the probability there is p.
  */
 export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number, viaRows = true): number {
   const kind = measure === "any-above" ? ANY_ABOVE : BELOW;
@@ -1266,19 +1269,24 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
 
 // Any-above draw sums: I(x) = E_z[g(x − s·z)], z ~ N(0, 1), g(v) = anyOf(share·above(1, 2^v), n), x = log2(t/rms),
 // s the spread (every element law but the constant one depends on t/r only). For many elements g is a step in v of
-// width σ_v far narrower than the draw rule's nodes (spread/8 apart in v). Where the step is narrower than the
-// draws (σ_v < s), the sum subtracts the smooth step A·Φ((z − z_c)/σ) fitted to g's (A = g far below the scale,
-// z_c where g = A/2, σ = σ_v/s from g's slope there), whose draw sum is closed form, E_z[Φ((z − c)/σ)] =
-// Φ(−c/√(1 + σ²)) (the difference of two normals), and integrates the remainder by the trapezoid rule in ξ with
-// z = z_c + σ·sinh ξ: fine nodes at the step, coarse ones far from it. The remainder at a node, g(v½ − σ_v·sinh ξ)
-// − A·Φ(sinh ξ), depends on the law and the element count only (not on the threshold or the spread), so it is
-// computed once per law and count and shared by every threshold and spread. The trapezoid rule converges
-// geometrically for analytic integrands (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory): the step
-// in ξ is halved from 1/2 until two sums agree to ANY_TOLERANCE, the last then good to about its square. A step as
-// wide as the draws or wider is smooth on their scale, and the draw rule sums it (within 1e-7 of a converged
-// reference there, test/risk/any-above.test.ts); the uniform law's kink is integrated from the kink on.
+// width σ_v far narrower than the draw rule's nodes (spread/8 apart in v), where that rule does not converge (4.7%
+// off). Where the step is narrower than the draws (σ_v < s), the sum subtracts the smooth step A·Φ((z − z_c)/σ)
+// fitted to g's (A = g far below the scale, z_c where g = A/2, σ = σ_v/s from g's slope there), whose draw sum is
+// closed form, E_z[Φ((z − c)/σ)] = Φ(−c/√(1 + σ²)) (the difference of two normals), and integrates the remainder by
+// the trapezoid rule in ξ with z = z_c + c·σ·sinh ξ (c = MAP_WIDTH): fine nodes at the step, coarse ones far from it.
+// The remainder at a node, g(v½ − c·σ_v·sinh ξ) − A·Φ(c·sinh ξ), depends on the law and the element count only (not
+// on the threshold or the spread), so it is shared by every threshold and spread (see rowSlot). The trapezoid rule
+// converges geometrically for analytic integrands (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory):
+// the step in ξ is halved from 1/2 until two sums agree to ANY_TOLERANCE, or, for GEOMETRIC_COUNT elements and more,
+// until the change is below ANY_GEOMETRIC and at most the 3/2 power of the one before (then converging geometrically,
+// the last sum is good to about the square of its change). A step as wide as the draws or wider is smooth on their
+// scale, and the draw rule sums it (within 1e-7 of a converged reference there); the uniform law's kink is integrated
+// from the kink on, the constant law in closed form. test/risk/any-above.test.ts holds every law to the definition's
+// integral (1e-6 relative, or 1e-12 absolute).
 const ANY_TOLERANCE = 1e-7;
 const ANY_GEOMETRIC = 1e-4;
+// (a few elements make a step whose far side falls double-exponentially, where the changes mislead: measured on the
+// test's sweep, 1 and 3 elements needed the plain tolerance)
 const GEOMETRIC_COUNT = 16;
 // node j of the tables stands at ξ = j/16; steps 1/2 … 1/16
 const ANY_UNIT = 16;
@@ -1290,7 +1298,7 @@ const ANY_TABLE = ANY_REACH * ANY_UNIT + 1;
 const MAP_WIDTH = 1.5;
 const SINH = new Float64Array(ANY_TABLE);
 const COSH = new Float64Array(ANY_TABLE);
-// Φ(sinh ξ_j)
+// Φ(c·sinh ξ_j) and Φ(−c·sinh ξ_j)
 const STEP_UP = new Float64Array(ANY_TABLE);
 const STEP_DOWN = new Float64Array(ANY_TABLE);
 for (let j = 0; j < ANY_TABLE; j++) {
@@ -1564,8 +1572,6 @@ function stepSum(x: number, s: number, slope: boolean): number {
   high = Math.min(high + 1, (ANY_TABLE - 1) / stride);
   let totalDerivative = step * derivative;
   let lastChange = 1;
-  // a few elements make a step whose far side falls double-exponentially, where the sums converge late: they take the
-  // plain tolerance
   const geometric = integrandCount >= GEOMETRIC_COUNT;
   while (stride > 1) {
     let middles = 0;
