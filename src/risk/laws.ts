@@ -1687,10 +1687,13 @@ function drawAt(x: number, s: number): number {
   return drawSum(1, s);
 }
 
+// a gap in log I from which anyAboveLevel's last Newton step needs no confirming sum
+const NEWTON_FINISH = 1e-5;
 // The level x where the any-above sum at spread s equals p (0 < p < A), on the sum itself so that the two agree:
 // Newton steps on log I from the fitted step's own crossing (the step rule gives I's derivative with its sum; the
-// other rules take secant steps, the first with the fitted step's slope), safeguarded by the bracket the signs give (I falls as x grows), until
-// the sum at the level is p to 1e-9 relative.
+// other rules take secant steps, the first with the fitted step's slope), safeguarded by the bracket the signs give
+// (I falls as x grows), until the sum at the level is p to 1e-9 relative (or a last Newton step from within
+// NEWTON_FINISH lands there).
 function anyAboveLevel(s: number, p: number): number {
   const rule = anyRule(s);
   const limit = rule === CLOSED_RULE ? anyOf(integrandShare, integrandCount) : fitLimit;
@@ -1713,8 +1716,12 @@ function anyAboveLevel(s: number, p: number): number {
     if (gap > 0) low = x;
     else high = x;
     let slope: number;
-    if (rule === STEP_RULE && value > 0) slope = stepSlope / value;
-    else if (Number.isFinite(previousGap) && Number.isFinite(gap) && previousGap !== gap) slope = (gap - previousGap) / (x - previousX);
+    if (rule === STEP_RULE && value > 0) {
+      slope = stepSlope / value;
+      // with the exact slope, Newton's step from a gap this small lands within about gap²/2 of log p (the curvature of
+      // log I is about its slope squared here): no sum is needed to confirm it
+      if (Math.abs(gap) <= NEWTON_FINISH && slope < 0) return x - gap / slope;
+    } else if (Number.isFinite(previousGap) && Number.isFinite(gap) && previousGap !== gap) slope = (gap - previousGap) / (x - previousX);
     else {
       // the fitted step's slope of log I: −φ(y)/(Q(y)·width) at y = (x − v½)/width
       const y = (x - fitHalf) / width;
