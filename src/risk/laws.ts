@@ -1326,37 +1326,37 @@ function anyAtCount(v: number, n: number): number {
 
 // The fitted step of g: its level v½ (g = A/2) and width σ_v = A·φ(0)/|g'(v½)|, A = anyOf(share, n) (above → 1 far
 // below the scale); width 0 for a law without one (constant).
-let fitLimit = 0;
-let fitHalf = NaN;
-let fitWidth = 0;
+// FIT[0] A, FIT[1] v½, FIT[2] σ_v, FIT[3] the step rule's last derivative in x (a typed array, not module variables:
+// a double stored in one is boxed at every store, garbage on the hot path)
+const FIT = new Float64Array(4);
 function fitStep(): void {
   fitStepOf(integrandCount);
 }
 function fitStepOf(n: number): void {
   const share = integrandShare;
   const limit = anyOf(share, n);
-  fitLimit = limit;
+  FIT[0] = limit;
   // above(1, 2^v½) = E with 1 − (1 − share·E)^n = A/2
   const half = -Math.expm1(Math.log1p(-limit / 2) / n) / share;
   let slope = 0;
-  fitHalf = 0;
+  FIT[1] = 0;
   if (integrandLaw === GAUSSIAN) {
     // erfc(a/√2) = 2Q(a) (Abramowitz & Stegun 26.2.29); dE/dv = −2φ(a)·a·ln 2
     const a = roughUpperQuantile(half / 2);
-    fitHalf = Math.log2(a);
+    FIT[1] = Math.log2(a);
     slope = 2 * normalPdf(a) * a * LN2;
   } else if (integrandLaw === LOG_NORMAL) {
     const s = integrandSpread;
     const y = roughUpperQuantile(half);
-    fitHalf = s * y - s * s * LN2;
+    FIT[1] = s * y - s * s * LN2;
     slope = normalPdf(y) / s;
   } else if (integrandLaw === UNIFORM) {
     const a = SQRT3 * (1 - half);
-    fitHalf = Math.log2(a);
+    FIT[1] = Math.log2(a);
     slope = (a * LN2) / SQRT3;
   }
   const width = (limit * normalPdf(0)) / (n * ((1 - limit / 2) / (1 - share * half)) * share * slope);
-  fitWidth = width > 0 && Number.isFinite(width) && Number.isFinite(fitHalf) ? width : 0;
+  FIT[2] = width > 0 && Number.isFinite(width) && Number.isFinite(FIT[1] as number) ? width : 0;
 }
 
 // The remainders g(v½ − c·σ_v·sinh ξ_j) − A·Φ(c·sinh ξ_j) (c = MAP_WIDTH) depend on the law and the element count
@@ -1421,17 +1421,17 @@ function rowSlot(countKey: number, n: number): number {
   }
   row.fill(NaN);
   // the row's own fitted step, keeping the current one
-  const half = fitHalf;
-  const width = fitWidth;
-  const limit = fitLimit;
+  const half = FIT[1] as number;
+  const width = FIT[2] as number;
+  const limit = FIT[0] as number;
   fitStepOf(n);
   REMAINDER_FITS[slot * 4] = n;
-  REMAINDER_FITS[slot * 4 + 1] = fitHalf;
-  REMAINDER_FITS[slot * 4 + 2] = fitWidth;
-  REMAINDER_FITS[slot * 4 + 3] = fitLimit;
-  fitHalf = half;
-  fitWidth = width;
-  fitLimit = limit;
+  REMAINDER_FITS[slot * 4 + 1] = FIT[1] as number;
+  REMAINDER_FITS[slot * 4 + 2] = FIT[2] as number;
+  REMAINDER_FITS[slot * 4 + 3] = FIT[0] as number;
+  FIT[1] = half;
+  FIT[2] = width;
+  FIT[0] = limit;
   return slot;
 }
 // pick the rows of the current law and count (fitStep set)
@@ -1453,7 +1453,16 @@ function remainderRow(): void {
     ROW_WEIGHTS[1] = (t * (t - 2) * (t - 3)) / 2;
     ROW_WEIGHTS[2] = (-t * (t - 1) * (t - 3)) / 2;
     ROW_WEIGHTS[3] = (t * (t - 1) * (t - 2)) / 6;
-    for (let k = 0; k < 4; k++) {
+    // neighbouring counts share their four rows (while the table keeps them)
+    const state = remainderCount + remainderClears * REMAINDER_SLOTS;
+    const same =
+      rowCount === 4 &&
+      GRID_KEY[0] === integrandLaw &&
+      GRID_KEY[1] === integrandShare &&
+      GRID_KEY[2] === elementSpread &&
+      GRID_KEY[3] === first &&
+      gridRows === state;
+    for (let k = same ? 4 : 0; k < 4; k++) {
       let slot = rowSlot(-(first + k), Math.exp((first + k) / GRID_PER_LN));
       // the table was full and cleared: the rows found so far are gone, start again
       if (slot < 0) {
@@ -1463,6 +1472,11 @@ function remainderRow(): void {
       ROW_SLOTS[k] = slot;
     }
     rowCount = 4;
+    GRID_KEY[0] = integrandLaw;
+    GRID_KEY[1] = integrandShare;
+    GRID_KEY[2] = elementSpread;
+    GRID_KEY[3] = first;
+    gridRows = remainderCount + remainderClears * REMAINDER_SLOTS;
   } else {
     let slot = rowSlot(n, n);
     if (slot < 0) slot = rowSlot(n, n);
@@ -1479,6 +1493,9 @@ function remainderRow(): void {
 // the key of COMBINED, and the table's state when it was made (a row made or the table cleared since may have taken a
 // slot of its rows)
 const COMBINED_KEY = new Float64Array(4).fill(NaN);
+// the law and first grid row of ROW_SLOTS when they are grid rows, and the table's state then
+const GRID_KEY = new Float64Array(4).fill(NaN);
+let gridRows = -1;
 let combinedRows = -1;
 let remainderClears = 0;
 // the remainder of row r (slot `slot`) at node j
@@ -1522,14 +1539,16 @@ const SUM_DIGITS = 1e-13;
 const TERMS_HALF = Math.ceil(ANY_TABLE / ANY_FIRST_STRIDE) + 1;
 const TERMS = new Float64Array(2 * TERMS_HALF + 1);
 // the step rule's sum and its derivative in x, of the last stepSum
-let stepSlope = 0;
 // Σ_j cosh ξ_j·σ·φ(z_j)·r_j·Δξ + the closed part, z_j = z_c + σ·sinh ξ_j (and with `slope`, the same sum's derivative
 // in x: dz_j/dx = 1/s, dφ(z)/dz = −z·φ(z)); fitStep and remainderRow set for the current law.
 function stepSum(x: number, s: number, slope: boolean): number {
-  const centre = (x - fitHalf) / s;
-  const sigma = (MAP_WIDTH * fitWidth) / s;
-  const spreadWidth = Math.sqrt(s * s + fitWidth * fitWidth);
-  const closed = fitLimit * normalSf((x - fitHalf) / spreadWidth);
+  const limit = FIT[0] as number;
+  const half = FIT[1] as number;
+  const width = FIT[2] as number;
+  const centre = (x - half) / s;
+  const sigma = (MAP_WIDTH * width) / s;
+  const spreadWidth = Math.sqrt(s * s + width * width);
+  const closed = limit * normalSf((x - half) / spreadWidth);
   let stride = ANY_FIRST_STRIDE;
   let sum = 0;
   let derivative = 0;
@@ -1598,7 +1617,7 @@ function stepSum(x: number, s: number, slope: boolean): number {
     if (change <= ANY_TOLERANCE || (geometric && change <= ANY_GEOMETRIC && change <= lastChange * Math.sqrt(lastChange))) break;
     lastChange = change;
   }
-  if (slope) stepSlope = totalDerivative / s - (fitLimit * normalPdf((x - fitHalf) / spreadWidth)) / spreadWidth;
+  if (slope) FIT[3] = totalDerivative / s - (limit * normalPdf((x - half) / spreadWidth)) / spreadWidth;
   return closed + total;
 }
 
@@ -1659,14 +1678,15 @@ function anyRule(s: number): number {
   if (integrandLaw === CONSTANT) return CLOSED_RULE;
   fitStep();
   if (integrandLaw === UNIFORM) return UNIFORM_RULE;
-  if (!(fitWidth > 0) || !(fitWidth < STEP_WIDTH_LIMIT * s)) return DRAW_RULE;
+  const width = FIT[2] as number;
+  if (!(width > 0) || !(width < STEP_WIDTH_LIMIT * s)) return DRAW_RULE;
   remainderRow();
   return STEP_RULE;
 }
 
 // I(x) of the current any-above integrand at spread s > 0 (x = log2(t/rms), finite), by its rule.
 function anyAboveSum(x: number, s: number, rule: number): number {
-  const limit = fitLimit;
+  const limit = FIT[0] as number;
   if (!(limit > 0)) return 0;
   switch (rule) {
     case CLOSED_RULE:
@@ -1696,14 +1716,14 @@ const NEWTON_FINISH = 1e-5;
 // NEWTON_FINISH lands there).
 function anyAboveLevel(s: number, p: number): number {
   const rule = anyRule(s);
-  const limit = rule === CLOSED_RULE ? anyOf(integrandShare, integrandCount) : fitLimit;
+  const limit = rule === CLOSED_RULE ? anyOf(integrandShare, integrandCount) : (FIT[0] as number);
   if (rule === CLOSED_RULE) {
-    fitLimit = limit;
-    fitHalf = 0;
-    fitWidth = 0;
+    FIT[0] = limit;
+    FIT[1] = 0;
+    FIT[2] = 0;
   }
-  const width = Math.sqrt(s * s + fitWidth * fitWidth);
-  let x = fitHalf + width * roughUpperQuantile(p / limit);
+  const width = Math.sqrt(s * s + (FIT[2] as number) * (FIT[2] as number));
+  let x = (FIT[1] as number) + width * roughUpperQuantile(p / limit);
   const target = Math.log(p);
   let low = -Infinity;
   let high = Infinity;
@@ -1717,14 +1737,14 @@ function anyAboveLevel(s: number, p: number): number {
     else high = x;
     let slope: number;
     if (rule === STEP_RULE && value > 0) {
-      slope = stepSlope / value;
+      slope = (FIT[3] as number) / value;
       // with the exact slope, Newton's step from a gap this small lands within about gap²/2 of log p (the curvature of
       // log I is about its slope squared here): no sum is needed to confirm it
       if (Math.abs(gap) <= NEWTON_FINISH && slope < 0) return x - gap / slope;
     } else if (Number.isFinite(previousGap) && Number.isFinite(gap) && previousGap !== gap) slope = (gap - previousGap) / (x - previousX);
     else {
       // the fitted step's slope of log I: −φ(y)/(Q(y)·width) at y = (x − v½)/width
-      const y = (x - fitHalf) / width;
+      const y = (x - (FIT[1] as number)) / width;
       const tail = normalSf(y);
       slope = tail > 0 ? -normalPdf(y) / (tail * width) : -y / width;
     }
