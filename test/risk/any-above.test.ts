@@ -98,7 +98,7 @@ describe("any-above draw sums", () => {
     for (const c of CASES) {
       for (const n of [1, 3, 97.5, 46012.4, 3.3e6, 1e9, 1e12]) {
         for (const spread of [0.05, 0.4, 1.3, 3]) {
-          for (const x of [-2, 0, 0.7, 1.5, 2.4, 3.5, 5, 8]) {
+          for (const x of [-2, 0, 0.7, 1.5, 2, 2.4, 3.5, 5, 8]) {
             const expected = reference(c.law, c.share, n, spread, x, c.elementSpread);
             const rms = 0.37;
             const actual = lawOverDraws(profileOf(c, n, spread, rms), "any-above", rms * 2 ** x, c.positiveOnly);
