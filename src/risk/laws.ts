@@ -4,6 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
+import { normalCdf as preciseNormalCdf, normalPdf as precisePdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -457,11 +458,104 @@ function drawSum(rms: number, log2Spread: number): number {
   const low = nodeValue(0);
   const high = nodeValue(last);
   if (low === high) return Math.min(1, Math.max(0, low));
-  if (integrandKind === ANY_ABOVE || integrandKind === CLOSURE) {
+  if (integrandKind === ANY_ABOVE) {
     const sum = monotoneSum(high > low);
     if (!Number.isNaN(sum)) return Math.min(1, Math.max(0, sum));
+    return ruleSum(true);
   }
-  return ruleSum(true);
+  // a smooth integrand: the coarse rules agree; a step or a kink (a hazard's coherent sum, the constant and uniform
+  // laws) is integrated panel by panel instead, where the Simpson sum would be off by up to a few percent
+  const coarse = coarseSum();
+  if (!Number.isNaN(coarse)) return coarse;
+  // smooth, but carried by the draws at the rule's ends (a share far below the scale): the Simpson rule, as before
+  if (COARSE_AGREED[0] === 1) return ruleSum(true);
+  return Math.min(1, Math.max(0, stepwiseSum()));
+}
+
+// Φ and Q = 1 − Φ at the nodes, from src/numeric's erfc (A&S 7.1.6 and its continued fraction): the normal mass
+// between two nodes, each side summed from its own tail so that far masses keep their relative precision
+const NODE_CDF = new Float64Array(DRAW_NODES.z.length);
+const NODE_SF = new Float64Array(DRAW_NODES.z.length);
+for (let i = 0; i < DRAW_NODES.z.length; i++) {
+  NODE_CDF[i] = preciseNormalCdf(DRAW_NODES.z[i] as number);
+  NODE_SF[i] = preciseNormalSf(DRAW_NODES.z[i] as number);
+}
+function massBetween(a: number, b: number): number {
+  const { z } = DRAW_NODES;
+  if ((z[b] as number) <= 0) return (NODE_CDF[b] as number) - (NODE_CDF[a] as number);
+  if ((z[a] as number) >= 0) return (NODE_SF[a] as number) - (NODE_SF[b] as number);
+  return 1 - (NODE_CDF[a] as number) - (NODE_SF[b] as number);
+}
+// φ(z)·f at z, for the panels' adaptive rule
+function weighted(z: number): number {
+  return precisePdf(z) * integrand(drawRms * 2 ** (drawSpread * z));
+}
+// adaptive Simpson (Lyness 1969; the Richardson term added) on [a, b] of φ·f, with its middle value and whole sum
+function adaptSimpson(a: number, fa: number, m: number, fm: number, b: number, fb: number, whole: number, tolerance: number, depth: number): number {
+  const lm = 0.5 * (a + m);
+  const rm = 0.5 * (m + b);
+  const flm = weighted(lm);
+  const frm = weighted(rm);
+  const left = ((m - a) / 6) * (fa + 4 * flm + fm);
+  const right = ((b - m) / 6) * (fm + 4 * frm + fb);
+  const delta = left + right - whole;
+  if (depth <= 0 || Math.abs(delta) <= 15 * tolerance) return left + right + delta / 15;
+  return (
+    adaptSimpson(a, fa, lm, flm, m, fm, left, 0.5 * tolerance, depth - 1) + adaptSimpson(m, fm, rm, frm, b, fb, right, 0.5 * tolerance, depth - 1)
+  );
+}
+// panels [node i, node i + 1] where the integrand changes, found by the current stepwiseSum
+const VARYING = new Int32Array(DRAW_NODES.z.length);
+const STACK = new Int32Array(2 * DRAW_NODES.z.length);
+const STEP_TOLERANCE = 1e-10;
+// The draw integral of a monotone integrand with steps or kinks: f is monotone, so between two nodes of equal value
+// it is constant and that stretch adds f times its normal mass exactly; the panels where it changes are integrated by
+// adaptive Simpson to STEP_TOLERANCE of the whole (a step anywhere inside a panel is found to that tolerance). The
+// draws beyond ±9 take the end values (f lies between them and its limits; their mass is 2.3e-19).
+function stepwiseSum(): number {
+  const { z } = DRAW_NODES;
+  const last = VALUES.length - 1;
+  let flat = nodeValue(0) * (NODE_CDF[0] as number) + nodeValue(last) * (NODE_SF[last] as number);
+  let varying = 0;
+  let top = 0;
+  STACK[top++] = 0;
+  STACK[top++] = last;
+  while (top > 0) {
+    const b = STACK[--top] as number;
+    const a = STACK[--top] as number;
+    const fa = nodeValue(a);
+    const fb = nodeValue(b);
+    if (fa === fb) flat += fa * massBetween(a, b);
+    else if (b - a === 1) VARYING[varying++] = a;
+    else {
+      const middle = (a + b) >> 1;
+      STACK[top++] = a;
+      STACK[top++] = middle;
+      STACK[top++] = middle;
+      STACK[top++] = b;
+    }
+  }
+  // a first Simpson estimate of each changing panel sets the tolerance against the whole
+  let estimate = flat;
+  for (let k = 0; k < varying; k++) {
+    const i = VARYING[k] as number;
+    const a = z[i] as number;
+    const b = z[i + 1] as number;
+    estimate += ((b - a) / 6) * (precisePdf(a) * (VALUES[i] as number) + 4 * weighted(0.5 * (a + b)) + precisePdf(b) * (VALUES[i + 1] as number));
+  }
+  const tolerance = (STEP_TOLERANCE * Math.max(Math.abs(estimate), 1e-300)) / Math.max(1, varying);
+  let sum = flat;
+  for (let k = 0; k < varying; k++) {
+    const i = VARYING[k] as number;
+    const a = z[i] as number;
+    const b = z[i + 1] as number;
+    const m = 0.5 * (a + b);
+    const fa = precisePdf(a) * (VALUES[i] as number);
+    const fm = weighted(m);
+    const fb = precisePdf(b) * (VALUES[i + 1] as number);
+    sum += adaptSimpson(a, fa, m, fm, b, fb, ((b - a) / 6) * (fa + 4 * fm + fb), tolerance, 50);
+  }
+  return sum;
 }
 
 // the draw of the current sum, and which nodes' values VALUES holds (KNOWN[i] === drawStamp)
@@ -485,9 +579,12 @@ function nodeValue(i: number): number {
   return value;
 }
 
-// The rule's own sums, from the nodes' values (each node evaluated at most once per sum).
-function ruleSum(trim: boolean): number {
-  const { w } = DRAW_NODES;
+// the step-1/2 trapezoid sum of the last coarseSum, accepted or not, and 1 when its two coarse rules agreed (a smooth
+// integrand, even where the end nodes' weight kept the sum from being accepted)
+const COARSE_HALF = new Float64Array(1);
+const COARSE_AGREED = new Uint8Array(1);
+// The coarse sum (see HALF_STRIDE) when the two coarse rules agree, else NaN; the node values at both ends are known.
+function coarseSum(): number {
   const values = VALUES;
   const last = values.length - 1;
   const low = values[0] as number;
@@ -496,10 +593,24 @@ function ruleSum(trim: boolean): number {
   let threeQuarter = THREE_QUARTER_WEIGHTS[0]! * low + THREE_QUARTER_WEIGHTS[last]! * high;
   for (let i = HALF_STRIDE; i < last; i += HALF_STRIDE) half += HALF_WEIGHTS[i]! * nodeValue(i);
   for (let i = THREE_QUARTER_STRIDE; i < last; i += THREE_QUARTER_STRIDE) threeQuarter += THREE_QUARTER_WEIGHTS[i]! * nodeValue(i);
+  COARSE_HALF[0] = half;
+  const agreed = Math.abs(half - threeQuarter) <= COARSE_AGREEMENT * Math.abs(half);
+  COARSE_AGREED[0] = agreed ? 1 : 0;
   const ends = HALF_WEIGHTS[0]! * Math.abs(low) + HALF_WEIGHTS[last]! * Math.abs(high);
-  if (Math.abs(half - threeQuarter) <= COARSE_AGREEMENT * Math.abs(half) && ends <= COARSE_END_SHARE * Math.abs(half)) {
-    return Math.min(1, Math.max(0, half));
-  }
+  if (agreed && ends <= COARSE_END_SHARE * Math.abs(half)) return Math.min(1, Math.max(0, half));
+  return NaN;
+}
+
+// The rule's own sums, from the nodes' values (each node evaluated at most once per sum).
+function ruleSum(trim: boolean): number {
+  const { w } = DRAW_NODES;
+  const values = VALUES;
+  const last = values.length - 1;
+  const low = values[0] as number;
+  const high = values[last] as number;
+  const coarse = coarseSum();
+  if (!Number.isNaN(coarse)) return coarse;
+  const half = COARSE_HALF[0] as number;
   // A monotone f ≥ 0 is smallest at one end: the nodes beyond a coarse node c there carry at most f_c times their
   // weight, so where that is below TAIL_TOLERANCE of a lower bound of the sum (and of its complement) the nodes
   // there take the midpoint of their coarse neighbours instead of an evaluation (the rule's sum to within that bound).
@@ -1677,7 +1788,13 @@ const DRAW_RULE = 1;
 const CLOSED_RULE = 2;
 const UNIFORM_RULE = 3;
 function anyRule(s: number): number {
-  if (integrandLaw === CONSTANT) return CLOSED_RULE;
+  if (integrandLaw === CONSTANT) {
+    // no step to fit: the limit is every element's own, set here for each caller (a stale fit's limit was read before)
+    FIT[0] = anyOf(integrandShare, integrandCount);
+    FIT[1] = 0;
+    FIT[2] = 0;
+    return CLOSED_RULE;
+  }
   fitStep();
   if (integrandLaw === UNIFORM) return UNIFORM_RULE;
   const width = FIT[2] as number;
@@ -1718,12 +1835,7 @@ const NEWTON_FINISH = 1e-5;
 // NEWTON_FINISH lands there).
 function anyAboveLevel(s: number, p: number): number {
   const rule = anyRule(s);
-  const limit = rule === CLOSED_RULE ? anyOf(integrandShare, integrandCount) : (FIT[0] as number);
-  if (rule === CLOSED_RULE) {
-    FIT[0] = limit;
-    FIT[1] = 0;
-    FIT[2] = 0;
-  }
+  const limit = FIT[0] as number;
   const width = Math.sqrt(s * s + (FIT[2] as number) * (FIT[2] as number));
   let x = (FIT[1] as number) + width * roughUpperQuantile(p / limit);
   const target = Math.log(p);
