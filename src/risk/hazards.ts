@@ -6,6 +6,7 @@ import { FORMATS, roundTo } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
+import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
@@ -414,15 +415,18 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   const outputs = Math.max(1, nonzeroElements(profile) / terms);
   const level = limits.overflowLevel;
   const coherent = law.positiveShare === 1;
-  const overflow =
-    profile.rms > 0
-      ? overDraws(profile.rms, profile.log2Spread, (r) => {
-          if (coherent) return terms * r >= level ? 1 : 0;
+  const overflow = !(profile.rms > 0)
+    ? 0
+    : coherent
+      ? // the sum passes the level exactly when the drawn scale passes level/terms: log2 r ~ N(log2 rms, spread²)
+        profile.log2Spread > 0
+        ? preciseNormalSf((Math.log2(level / terms) - Math.log2(profile.rms)) / profile.log2Spread)
+        : terms * profile.rms >= level ? 1 : 0
+      : overDraws(profile.rms, profile.log2Spread, (r) => {
           // P(|S_n| ≥ level) = 2·Q(level/(√n·r)), doubled for the running maximum
           const perOutput = Math.min(1, 4 * normalSf(level / (Math.sqrt(terms) * r)));
           return anyOf(perOutput, outputs);
-        })
-      : 0;
+        });
   putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", error, null,
     t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
   putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),

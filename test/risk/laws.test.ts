@@ -4,6 +4,7 @@ import { anyOf } from "../../src/risk/_math.js";
 import {
   directLawOverDraws,
   elementLaw,
+  isConstantLike,
   gaussianBelowOverDraws,
   gaussianEnergyBelowOverDraws,
   lawMixtureCrossing,
@@ -89,7 +90,12 @@ describe("draw sums of the element laws", () => {
       }
       for (const measure of ["below", "energy-below"] as const) {
         const f = measure === "below" ? (r: number) => law.below(r, t) : (r: number) => law.energyBelow(r, t);
-        expect(overDraws(rms, log2Spread, f)).toBe(directLawOverDraws(profile, measure, t));
+        const closure = overDraws(rms, log2Spread, f);
+        const direct = directLawOverDraws(profile, measure, t);
+        // the uniform and constant laws take the same panels as a closure: equal; the Gaussian and log-normal shares keep
+        // the Simpson rule where a closure (not known to be smooth) takes the panels: within that rule's error at step 1/8
+        if (profile.shape === "uniform" || isConstantLike(profile)) expect(closure).toBe(direct);
+        else expect(Math.abs(closure - direct)).toBeLessThanOrEqual(2e-5 * Math.max(direct, 1e-12));
       }
     }
     if (worst >= 1e-6) console.log(JSON.stringify(worstCase));
@@ -159,13 +165,7 @@ describe("draw sums of the element laws", () => {
             const closed = measure === "below" ? gaussianBelowOverDraws(2 ** x, log2Spread) : gaussianEnergyBelowOverDraws(2 ** x, log2Spread);
             if (!Number.isNaN(closed)) continue;
             const direct = directLawOverDraws(profile, measure, t);
-            // Relative to the value (not its complement): the rows are Simpson sums at step 1/8, which at spreads near 2.5
-            // are off by up to ~4e-6 of the value (1.3e-6 absolute) where the direct sum, integrated panel by panel when the coarse rules
-            // disagree, converges (spread 2.4632, x = 3.4329: rows 0.87218935, direct 0.87219115, a trapezoid at step
-            // 1/10923 0.87219115). Below 1e-12 the sums are carried by draws past ±4.5 standard deviations, where the
-            // cut at ±9 already costs ~1e-5 of their own size: compared there to 2e-6 of 1e-12
-            const table = lawOverDraws(profile, measure, t);
-            const d = Math.abs(table - direct) / Math.max(direct, 1e-12);
+            const d = apart(lawOverDraws(profile, measure, t), direct);
             compared++;
             if (d > worst) {
               worst = d;
@@ -176,8 +176,8 @@ describe("draw sums of the element laws", () => {
       }
     }
     expect(compared).toBeGreaterThan(20000);
-    if (worst >= 5e-6) console.log(JSON.stringify(worstCase));
-    expect(worst).toBeLessThan(5e-6);
+    if (worst >= 2e-6) console.log(JSON.stringify(worstCase));
+    expect(worst).toBeLessThan(2e-6);
   });
 
   // The Gaussian "below" crossing reads the mixture off the shared rows (to about 1e-8 of the rule's sum), so its
