@@ -19,6 +19,10 @@ const VERSION = "0.1.0";
 
 /** Run the CLI; resolves to the process exit code. Never throws. */
 export async function main(argv: readonly string[]): Promise<number> {
+  // A reader that goes away (`| head`) makes stdout emit EPIPE as an event besides failing the write: without a
+  // listener Node throws it with a stack. The failed write itself reaches reportError (quiet for a broken pipe, a
+  // one-line message otherwise), so the event has nothing left to tell.
+  if (process.stdout.listenerCount("error") === 0) process.stdout.on("error", () => {});
   const program = buildProgram();
   takeExitCode();
   try {
