@@ -4,13 +4,8 @@
  * inverse. Relative accuracy about 1e-7, ample for probabilities reported to two digits.
  */
 
-/** 1/√(2π) */
-const INV_SQRT_2PI = 0.3989422804014327;
-
-/** Standard normal density φ(x) = e^{−x²/2}/√(2π). */
-export function normalPdf(x: number): number {
-  return INV_SQRT_2PI * Math.exp(-0.5 * x * x);
-}
+// the density is the same function here as in src/numeric
+export { normalPdf } from "../numeric/normal.js";
 
 // erf(x) = (2/√π)·Σ (−1)^n x^{2n+1}/(n!(2n+1)) (Abramowitz & Stegun 7.1.5); below |x| = 0.5 the terms fall by
 // more than a factor 4 each, so 20 terms reach full precision without cancellation.

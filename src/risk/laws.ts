@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
-import { normalCdf as preciseNormalCdf, normalPdf as precisePdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -490,7 +490,7 @@ function massBetween(a: number, b: number): number {
 }
 // φ(z)·f at z, for the panels' adaptive rule
 function weighted(z: number): number {
-  return precisePdf(z) * integrand(drawRms * 2 ** (drawSpread * z));
+  return normalPdf(z) * integrand(drawRms * 2 ** (drawSpread * z));
 }
 // adaptive Simpson (Lyness 1969; the Richardson term added) on [a, b] of φ·f, with its middle value and whole sum
 function adaptSimpson(a: number, fa: number, m: number, fm: number, b: number, fb: number, whole: number, tolerance: number, depth: number): number {
@@ -545,7 +545,7 @@ function stepwiseSum(): number {
     const i = VARYING[k] as number;
     const a = z[i] as number;
     const b = z[i + 1] as number;
-    estimate += ((b - a) / 6) * (precisePdf(a) * (VALUES[i] as number) + 4 * weighted(0.5 * (a + b)) + precisePdf(b) * (VALUES[i + 1] as number));
+    estimate += ((b - a) / 6) * (normalPdf(a) * (VALUES[i] as number) + 4 * weighted(0.5 * (a + b)) + normalPdf(b) * (VALUES[i + 1] as number));
   }
   const tolerance = (STEP_TOLERANCE * Math.max(Math.abs(estimate), 1e-300)) / Math.max(1, varying);
   let sum = flat;
@@ -554,9 +554,9 @@ function stepwiseSum(): number {
     const a = z[i] as number;
     const b = z[i + 1] as number;
     const m = 0.5 * (a + b);
-    const fa = precisePdf(a) * (VALUES[i] as number);
+    const fa = normalPdf(a) * (VALUES[i] as number);
     const fm = weighted(m);
-    const fb = precisePdf(b) * (VALUES[i + 1] as number);
+    const fb = normalPdf(b) * (VALUES[i + 1] as number);
     sum += adaptSimpson(a, fa, m, fm, b, fb, ((b - a) / 6) * (fa + 4 * fm + fb), tolerance, 50);
   }
   return sum;

@@ -18,7 +18,7 @@ export function addJudgeOptions(command: Command): Command {
       ),
     )
     .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
-    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale instead of the plan's"));
+    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale, a power of two, instead of the plan's"));
 }
 
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards (run by src/cli/check.ts). */
