@@ -9,6 +9,7 @@ import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
 import { judgePrediction, planFor, planFormats, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
+import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
 import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
@@ -69,9 +70,9 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   const prediction = measuredPrediction(built.graph, planned, measurements);
   const answers = lossScaleAnswers(prediction, plan, options, spec.training.horizon.steps);
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
-  // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin
-  const given = options.lossScale !== undefined || plan.lossScale !== undefined;
-  const judged = judgePrediction(planned, prediction, given || answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
+  // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
+  // scale wins over the windows in the judgement)
+  const judged = judgePrediction(planned, prediction, answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
@@ -91,7 +92,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
     // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
     const scaleVerdict: Verdict = !answer.window.empty ? "fits" : answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails";
     if (scaleVerdict !== "fits" && !judgedNames.includes(answer.format)) {
-      told.push({ ...answer, sentences: [...answer.sentences, `Not counted in the verdict: ${answer.format} is not among the formats judged.`] });
+      told.push({ ...answer, sentences: [...answer.sentences, notCountedSentence(answer.format)] });
       continue;
     }
     told.push(answer);

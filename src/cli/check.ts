@@ -6,7 +6,7 @@ import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
 import { formatSpecIssue, formatSpecPath } from "../spec/index.js";
 import { loadSpecReporting } from "./load-spec.js";
-import { parseLossScale } from "./shared.js";
+import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
 /** Options shared by `check` and `explain`. */

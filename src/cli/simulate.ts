@@ -15,7 +15,8 @@ import {
   type SimulationReport,
   type SimulationResult,
 } from "../simulate/index.js";
-import { parseLossScale, writeFileAtomic } from "./shared.js";
+import { parseLossScale } from "./loss-scale.js";
+import { writeFileAtomic } from "./shared.js";
 import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 

@@ -204,18 +204,21 @@ export const TENSOR_ROW_LIMIT = 30;
 /** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, overflow per step, verdict). */
 export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorCheckRisk }[], style: Style = PLAIN): string {
   // a format judged at another loss scale has the tensor's numbers after its own scale
-  const cells: Cell[][] = rows.map(({ tensor, risk }) => [
-    tensor.layer,
-    tensor.role + (tensor.id.includes(":") ? `:${tensor.id.slice(tensor.id.indexOf(":") + 1)}` : ""),
-    risk.format,
-    pair((risk.statistics ?? tensor.statistics).start.rms, (risk.statistics ?? tensor.statistics).end.rms),
-    pair((risk.statistics ?? tensor.statistics).start.max, (risk.statistics ?? tensor.statistics).end.max),
-    binadesCell(risk.worst.headroom),
-    binadesCell(risk.worst.footroom),
-    formatProbability(risk.worst.flushedFraction),
-    formatProbability(risk.worst.overflowRisk),
-    verdictText(risk.verdict, style),
-  ]);
+  const cells: Cell[][] = rows.map(({ tensor, risk }) => {
+    const statistics = risk.statistics ?? tensor.statistics;
+    return [
+      tensor.layer,
+      tensor.role + (tensor.id.includes(":") ? `:${tensor.id.slice(tensor.id.indexOf(":") + 1)}` : ""),
+      risk.format,
+      pair(statistics.start.rms, statistics.end.rms),
+      pair(statistics.start.max, statistics.end.max),
+      binadesCell(risk.worst.headroom),
+      binadesCell(risk.worst.footroom),
+      formatProbability(risk.worst.flushedFraction),
+      formatProbability(risk.worst.overflowRisk),
+      verdictText(risk.verdict, style),
+    ];
+  });
   return renderTable(
     [
       { title: "layer", maxWidth: 40 },

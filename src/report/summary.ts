@@ -136,7 +136,7 @@ export function unscaledReason(format: FormatName, scaling: PrecisionPlan["scali
   const f = FORMATS[format];
   if (f.bits === 8 && scaling !== "none") return `gradients are held in ${format} with per-${scaling} scale factors`;
   if (format === "binary32" || format === "binary64") return `gradients are held in ${format}`;
-  return `gradients are held in ${format}, which has ${f.exponentBits > 8 ? "more than " : ""}binary32's exponent range`;
+  return `gradients are held in ${format}, which has binary32's exponent range`;
 }
 
 /** One loss-scale answer in a row's terms; "not needed" for none. */

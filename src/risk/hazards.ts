@@ -2,7 +2,6 @@
  * Operation hazards: places where an operation, not a stored tensor, overflows or loses values. Each site
  * is judged against the formats of the plan entries that hold its result.
  */
-import { FORMATS, roundTo } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
@@ -11,7 +10,7 @@ import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
+import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -478,9 +477,9 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
   const epsilon = site.constant;
   if (epsilon === undefined) return;
   // its own verdict: fits while ε stays nonzero; else fails where some second moment is zero every step. Kept or
-  // not by rounding ε itself (IEEE 754-2019 §4.3.1; flushing after rounding, SCIENCE.md §1.2), as the optimizer
-  // check does: the smallest normal is kept where subnormals flush, though flushBound (for profiles) equals it
-  if (roundTo(FORMATS[limits.format], epsilon, { flushSubnormals: limits.smallest === limits.minNormal }) !== 0) {
+  // not by rounding ε itself, as the optimizer check does: the smallest normal is kept where subnormals flush, though
+  // flushBound (for profiles) equals it
+  if (storedEpsilon(limits, epsilon) !== 0) {
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
       "fits", 0, EPSILON_KEPT, epsilon, false);
   } else {

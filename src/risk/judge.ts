@@ -18,7 +18,7 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
-import { byRms, weightGradientsOf } from "./second-moments.js";
+import { byRms, hasSite, weightGradientsOf } from "./second-moments.js";
 import { lossScaleFactor, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -220,8 +220,7 @@ function windowScale(window: LossScaleWindowSummary): AppliedLossScale {
  * gradient format of the setting's plan as judged, or none (a format whose gradients need no scale, or no window given).
  * Settings judged at the same scale share one object.
  */
-function settingScales(plan: PrecisionPlan, settings: readonly FormatSetting[], options: CheckOptions): AppliedLossScale[] {
-  const given = givenLossScale(plan, options);
+function settingScales(given: AppliedLossScale | undefined, settings: readonly FormatSetting[], options: CheckOptions): AppliedLossScale[] {
   const scales: AppliedLossScale[] = [];
   if (given !== undefined) {
     for (let i = 0; i < settings.length; i++) scales.push(given);
@@ -257,10 +256,10 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const plan = spec.precision;
   const thresholds = thresholdsOf(options.thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...options.thresholds });
   // a bad loss scale is reported before an unknown format, as it always was
-  givenLossScale(plan, options);
+  const given = givenLossScale(plan, options);
   const formats = judgedFormats(plan, options);
   const settings = formatSettings(plan, formats, thresholds);
-  const scales = settingScales(plan, settings, options);
+  const scales = settingScales(given, settings, options);
   for (let i = 0; i < settings.length; i++) (settings[i] as FormatSetting).lossScale = (scales[i] as AppliedLossScale).value;
   const lossScale = scales[0] as AppliedLossScale;
   const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
@@ -650,11 +649,6 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
     }
   }
   return sites;
-}
-
-function hasSite(sites: readonly HazardSite[], kind: HazardSite["kind"]): boolean {
-  for (let i = 0; i < sites.length; i++) if ((sites[i] as HazardSite).kind === kind) return true;
-  return false;
 }
 
 // the first tensor of role "loss", as `find` would give it

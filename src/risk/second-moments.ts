@@ -6,11 +6,20 @@
  */
 import type { HazardSite, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { fractionBelow, nonzeroElements } from "./profile.js";
-import type { RiskThresholds, Verdict } from "./types.js";
+import { FORMATS, roundTo } from "../formats/index.js";
+import type { RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // The stored second moment (1 − β2)·g² flushes for |g| ≤ √(flush bound/(1 − β2)): about 5.5e-3 in binary16 with
 // β2 = 0.999 (DESIGN.md §5 item 5). The gradient is without the loss scale (removed before the optimizer).
 // Gives the gradient bound and the share of nonzero elements below it.
+/**
+ * Adam's ε as the state format stores it: rounded (IEEE 754-2019 §4.3.1), then flushed where the limits flush
+ * subnormals (SCIENCE.md §1.2), so the smallest normal is kept. 0 when it vanishes. One rule for hazard and optimizer.
+ */
+export function storedEpsilon(limits: RangeLimits, epsilon: number): number {
+  return roundTo(FORMATS[limits.format], epsilon, { flushSubnormals: limits.smallest === limits.minNormal });
+}
+
 export function flushedSecondMoments(gradient: MagnitudeProfile, flushBound: number, beta2: number): { bound: number; share: number } {
   const bound = Math.sqrt(flushBound / Math.max(1e-300, 1 - beta2));
   return { bound, share: gradient.rms > 0 ? fractionBelow(gradient, bound) : 0 };
@@ -137,4 +146,10 @@ export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
     if (tensor.role === "weight-gradient") out.push(tensor);
   }
   return out;
+}
+
+/** Whether the prediction carries a hazard site of this kind itself (the check then adds none for it). */
+export function hasSite(sites: readonly HazardSite[], kind: HazardSite["kind"]): boolean {
+  for (let i = 0; i < sites.length; i++) if ((sites[i] as HazardSite).kind === kind) return true;
+  return false;
 }

@@ -113,3 +113,8 @@ export function scaleWords(scale: number): string {
   const k = Math.log2(scale);
   return Number.isInteger(k) && k !== 0 ? `2^${k}` : plainNumber(scale);
 }
+
+/** The sentence a finding carries when its format is not among the formats judged (it is told, not counted). */
+export function notCountedSentence(format: string): string {
+  return `Not counted in the verdict: ${format} is not among the formats judged.`;
+}

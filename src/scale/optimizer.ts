@@ -3,18 +3,21 @@
  * and whether each weight update survives the add into the stored weights (swamping, src/scale/swamping.ts).
  */
 import type { Format } from "../formats/index.js";
-import { getFormat, roundTo } from "../formats/index.js";
+import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, type RiskThresholds } from "../risk/index.js";
 import {
   flushedSecondMoments,
   flushedSecondMomentsVerdict,
+  hasSite,
   networkZeroSecondMoments,
   stateSiteGradients,
+  storedEpsilon,
   vanishedEpsilonVerdict,
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
+import { notCountedSentence } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -236,7 +239,6 @@ export function checkOptimizer(
   // or the smallest normal where subnormals flush, as bfloat16's are taken to by default (SCIENCE.md §1.2)
   const stateLimits = limitsFor(plan, plan.optimizerStates);
   const stateFlushBound = stateLimits.flushBound;
-  const flushStates = stateLimits.smallest === stateFormat.minNormal;
   const stateOverflow = stateFormat.overflowThreshold;
   const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
 
@@ -257,7 +259,7 @@ export function checkOptimizer(
 
   const epsilon = adamLike
     ? (() => {
-        const stored = roundTo(stateFormat, optimizer.epsilon, { flushSubnormals: flushStates });
+        const stored = storedEpsilon(stateLimits, optimizer.epsilon);
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
@@ -266,7 +268,7 @@ export function checkOptimizer(
   // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site
   let zeros: ZeroCount = { perStep: 0, top: "" };
   if (epsilon?.vanishes) {
-    if (hasOwnSite(prediction, "optimizer-constant")) {
+    if (hasSite(prediction.hazards, "optimizer-constant")) {
       const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
       for (let i = 0; i < gradients.length; i++) {
         zeros.perStep = Math.max(zeros.perStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, stateFlushBound, optimizer.betas[1]));
@@ -306,11 +308,6 @@ export function checkOptimizer(
 interface ZeroCount {
   perStep: number;
   top: string;
-}
-
-function hasOwnSite(prediction: Prediction, kind: OptimizerStateHazard): boolean {
-  for (let i = 0; i < prediction.hazards.length; i++) if ((prediction.hazards[i] as Prediction["hazards"][number]).kind === kind) return true;
-  return false;
 }
 
 // Flushed second moments at their hazard's gradients: the share in the state format, the share binary32 states
@@ -432,7 +429,7 @@ function summarise(
   // a finding in a format left out of the judged ones is told but not counted, as the formats' verdicts leave it out;
   // returns the sentence that says so
   const raise = (v: OptimizerVerdict, format: Format): string => {
-    if (judged !== undefined && !judged.includes(format.name)) return ` Not counted in the verdict: ${format.name} is not among the formats judged.`;
+    if (judged !== undefined && !judged.includes(format.name)) return ` ${notCountedSentence(format.name)}`;
     if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
     return "";
   };

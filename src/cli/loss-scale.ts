@@ -1,0 +1,19 @@
+import { UserError } from "./errors.js";
+
+/**
+ * `--loss-scale`: the spec's rule for `loss-scale` (src/spec/checks.ts), so a flag and a spec accept the same
+ * values: a power of two, so scaling and unscaling are exact (Micikevicius et al. 2018 §3.2), inside binary32's
+ * normal range 2^-126 to 2^127 (IEEE 754-2019 Table 3.5), where the scaled loss is computed.
+ */
+export function parseLossScale(text: string | undefined): number | undefined {
+  if (text === undefined) return undefined;
+  const value = Number(text);
+  if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
+    throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
+  }
+  const exponent = Math.log2(value);
+  if (exponent < -126 || exponent > 127) {
+    throw new UserError(`--loss-scale: 2^${exponent} is outside the binary32 range (2^-126 to 2^127), got "${text}"`);
+  }
+  return value;
+}
