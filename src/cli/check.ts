@@ -17,7 +17,7 @@ export interface JudgeFlags {
 }
 
 /** Parse `--format a,b --format c` into format names (aliases such as fp16 accepted). */
-export function parseFormats(values: readonly string[] | undefined): FormatName[] | undefined {
+function parseFormats(values: readonly string[] | undefined): FormatName[] | undefined {
   if (values === undefined) return undefined;
   const names: FormatName[] = [];
   for (const value of values.flatMap((v) => v.split(","))) {

@@ -19,9 +19,9 @@ const VERSION = "0.1.0";
 
 /** Run the CLI; resolves to the process exit code. Never throws. */
 export async function main(argv: readonly string[]): Promise<number> {
-  // A reader that goes away (`| head`) makes stdout emit EPIPE as an event besides failing the write: without a
-  // listener Node throws it with a stack. The failed write itself reaches reportError (quiet for a broken pipe, a
-  // one-line message otherwise), so the event has nothing left to tell.
+  // A reader that goes away (`| head`) makes stdout emit EPIPE as an event: without a listener Node throws it with a
+  // stack. Writes through writeOut (and round's buffered output) get the error back and end the command at it
+  // (reportError: quiet for a broken pipe); plain writes of the other commands fail silently to their end.
   if (process.stdout.listenerCount("error") === 0) process.stdout.on("error", () => {});
   const program = buildProgram();
   takeExitCode();

@@ -110,3 +110,15 @@ function bisectQuantile(q: number): number {
   }
   return 0.5 * (lo + hi);
 }
+
+// a key's 32-bit words hashed: FNV-1a over the words, then mixed
+export function hashWords(words: Int32Array): number {
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < words.length; i++) hash = Math.imul(hash ^ (words[i] as number), 0x01000193);
+  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
+  return hash ^ (hash >>> 12);
+}
+// the slot of a key's words in a table of `slots` (a power of two)
+export function hashSlot(words: Int32Array, slots: number): number {
+  return hashWords(words) & (slots - 1);
+}

@@ -3,7 +3,7 @@
  * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, erf, erfc, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
+import { anyOf, erf, erfc, hashSlot, normalCdf, normalPdf, normalSf, LN2 } from "./_math.js";
 import { normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 
 const SQRT2 = Math.SQRT2;
@@ -183,8 +183,9 @@ function baseLaw(profile: MagnitudeProfile): ElementLaw {
 
 // Draws of the scale: log2(r) = log2(rms) + spread·z, z ~ N(0, 1). The integrand over z is often a smoothed
 // step (a tail probability that switches on past some draw), which a Gauss–Hermite rule with its few outer
-// nodes resolves poorly; composite Simpson on a uniform grid (step 1/8) over ±9 standard deviations resolves it,
-// and the mass beyond 9 (about 2e-19) is below any probability we report.
+// nodes resolves poorly; composite Simpson on a uniform grid (step 1/8) over ±9 standard deviations resolves a step
+// as wide as a few nodes, and the mass beyond 9 (about 2e-19) is below any probability we report. Narrower steps
+// take their own rules: the any-above sums (anyAboveSum) and the panels of stepwiseSum.
 const DRAW_LIMIT = 9;
 const DRAW_STEP = 1 / 8;
 const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
@@ -207,8 +208,9 @@ const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
 // whole line converges geometrically in 1/step (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory),
 // and the Gaussian weight alone is resolved to about 2e^{−2π²/step²} (1e-15 at step 3/4). When the two sums agree
 // to 1e-10, the step-1/2 sum is good to about the 3/2 power of that: the far digits of the Simpson sum, at 49
-// evaluations instead of 145. Steps in the integrand (a bound, a threshold the draws cross) fail the test and get
-// the full rule, as does an integrand whose end nodes carry weight (the rules treat the cut at ±9 differently).
+// evaluations instead of 145. Steps in the integrand (a bound, a threshold the draws cross) fail the test and are
+// summed panel by panel (stepwiseSum); an integrand whose end nodes carry weight gets the full rule (the rules treat
+// the cut at ±9 differently).
 const HALF_STRIDE = 4;
 const THREE_QUARTER_STRIDE = 6;
 function trapezoidWeights(stride: number): Float64Array {
@@ -264,8 +266,7 @@ const VALUES = new Float64Array(DRAW_NODES.z.length);
 
 // The integrand of a draw sum. The profile functions set these and the sum calls `integrand`, one function for
 // every element law: no closure per call, and one call site the compiler can specialise. The arithmetic is the
-// element laws' own functions (the constant law's one comparison written again), so the sums equal those of
-// overDraws with the laws' closures.
+// element laws' own functions (the constant law's one comparison written again).
 const ANY_ABOVE = 0;
 const BELOW = 1;
 const ENERGY_BELOW = 2;
@@ -386,8 +387,8 @@ function measureKind(measure: "any-above" | "below" | "energy-below"): number {
  * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
  * The any-above sums follow the step of many elements (see anyAboveSum: within 1e-6 of the draw integral, not the
  * draw rule's sums); the Gaussian shares below are read off rows shared by every threshold (within 2e-6 of the rule's
- * sum, see gaussianTableValue); the other shares equal, bit for bit, overDraws with those closures
- * ({@link directLawOverDraws}).
+ * sum, see gaussianTableValue); the other shares are {@link directLawOverDraws}: the Simpson rule for the smooth
+ * Gaussian and log-normal shares, the panels of a closure for the uniform and constant laws.
  */
 export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
   const kind = measureKind(measure);
@@ -423,8 +424,8 @@ function anyAboveOverDraws(rms: number, log2Spread: number, t: number): number {
 /**
  * E over draws of a probability or share f(r), where log2(r) ~ N(log2(rms), log2Spread²) (finite-width
  * spread, Hanin & Nica 2019): f(rms) itself when the scale does not spread. Clamped to [0, 1] against the
- * rounding of the quadrature sum. Smooth integrands take the coarse rule (49 evaluations, see HALF_STRIDE), the
- * others the Simpson rule (145).
+ * rounding of the quadrature sum. Smooth integrands take the coarse rule (49 evaluations, see HALF_STRIDE), steps and
+ * kinks the panels of stepwiseSum (f must be monotone in r).
  */
 export function overDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
   integrandKind = CLOSURE;
@@ -434,7 +435,7 @@ export function overDraws(rms: number, log2Spread: number, f: (r: number) => num
 
 /**
  * {@link overDraws} by the quadrature rule alone (the coarse sum where it is accepted, else the Simpson sum), without
- * the monotone shortcut for step-like integrands: the reference the shortcut is held to in the tests.
+ * the panels for steps: the rule itself, as the tests hold it to the full Simpson sum.
  */
 export function ruleOverDraws(rms: number, log2Spread: number, f: (r: number) => number): number {
   integrandKind = CLOSURE;
@@ -447,8 +448,9 @@ export function ruleOverDraws(rms: number, log2Spread: number, f: (r: number) =>
   return ruleSum(false);
 }
 
-// The draw sum of the current integrand: the Simpson sum over the nodes (or the coarse sum it accepts, see
-// HALF_STRIDE), or for a step-like integrand the monotone sum below, within MONOTONE_TOLERANCE of the Simpson sum.
+// The draw sum of the current integrand: the coarse sum where the two coarse rules accept it (see HALF_STRIDE), the
+// Simpson sum for a smooth integrand (the any-above sums that reach here: steps as wide as the draws), or panel by
+// panel for a step or a kink (stepwiseSum).
 function drawSum(rms: number, log2Spread: number): number {
   if (!(log2Spread > 0)) return integrand(rms);
   beginDraw(rms, log2Spread);
@@ -458,11 +460,7 @@ function drawSum(rms: number, log2Spread: number): number {
   const low = nodeValue(0);
   const high = nodeValue(last);
   if (low === high) return Math.min(1, Math.max(0, low));
-  if (integrandKind === ANY_ABOVE) {
-    const sum = monotoneSum(high > low);
-    if (!Number.isNaN(sum)) return Math.min(1, Math.max(0, sum));
-    return ruleSum(true);
-  }
+  if (integrandKind === ANY_ABOVE) return ruleSum(true);
   // a smooth integrand: the coarse rules agree; a step or a kink (a hazard's coherent sum, the constant and uniform
   // laws) is integrated panel by panel instead, where the Simpson sum would be off by up to a few percent
   const coarse = coarseSum();
@@ -509,6 +507,9 @@ function adaptSimpson(a: number, fa: number, m: number, fm: number, b: number, f
 // panels [node i, node i + 1] where the integrand changes, found by the current stepwiseSum
 const VARYING = new Int32Array(DRAW_NODES.z.length);
 const STACK = new Int32Array(2 * DRAW_NODES.z.length);
+// each changing panel's middle value φ·f and first Simpson sum
+const PANEL_MIDDLE = new Float64Array(DRAW_NODES.z.length);
+const PANEL_WHOLE = new Float64Array(DRAW_NODES.z.length);
 // 1e-8 of the whole: the probabilities are told to three digits and held to 1e-6 (README); at 1e-10 a norm's sum of
 // squares over 131072 features (a rise 0.01 wide in z) took ~800 evaluations per sum, at 1e-8 ~290
 const STEP_TOLERANCE = 1e-8;
@@ -539,13 +540,18 @@ function stepwiseSum(): number {
       STACK[top++] = b;
     }
   }
-  // a first Simpson estimate of each changing panel sets the tolerance against the whole
+  // a first Simpson estimate of each changing panel (kept with its middle value for the refinement) sets the
+  // tolerance against the whole
   let estimate = flat;
   for (let k = 0; k < varying; k++) {
     const i = VARYING[k] as number;
     const a = z[i] as number;
     const b = z[i + 1] as number;
-    estimate += ((b - a) / 6) * (normalPdf(a) * (VALUES[i] as number) + 4 * weighted(0.5 * (a + b)) + normalPdf(b) * (VALUES[i + 1] as number));
+    const middle = weighted(0.5 * (a + b));
+    const whole = ((b - a) / 6) * (normalPdf(a) * (VALUES[i] as number) + 4 * middle + normalPdf(b) * (VALUES[i + 1] as number));
+    PANEL_MIDDLE[k] = middle;
+    PANEL_WHOLE[k] = whole;
+    estimate += whole;
   }
   const tolerance = (STEP_TOLERANCE * Math.max(Math.abs(estimate), 1e-300)) / Math.max(1, varying);
   let sum = flat;
@@ -553,11 +559,9 @@ function stepwiseSum(): number {
     const i = VARYING[k] as number;
     const a = z[i] as number;
     const b = z[i + 1] as number;
-    const m = 0.5 * (a + b);
     const fa = normalPdf(a) * (VALUES[i] as number);
-    const fm = weighted(m);
     const fb = normalPdf(b) * (VALUES[i + 1] as number);
-    sum += adaptSimpson(a, fa, m, fm, b, fb, ((b - a) / 6) * (fa + 4 * fm + fb), tolerance, 50);
+    sum += adaptSimpson(a, fa, 0.5 * (a + b), PANEL_MIDDLE[k] as number, b, fb, PANEL_WHOLE[k] as number, tolerance, 50);
   }
   return sum;
 }
@@ -655,86 +659,14 @@ function ruleSum(trim: boolean): number {
   return Math.min(1, Math.max(0, sum));
 }
 
-// A monotone f ≥ 0 between two nodes a < b lies between f_a and f_b, so the weight strictly between them carries
-// between f_a·W and f_b·W: their midpoint is off by at most |f_b − f_a|·W/2. Nodes are added where that bound is
-// largest until the bounds of all gaps together are below MONOTONE_TOLERANCE times a lower bound of the whole sum
-// (f_i times the weight of the nodes at and beyond i on the rising side). A step-like integrand (an exceedance
-// probability of many elements against a wide spread) settles after a dozen evaluations where the rule takes
-// 50–145; a smooth one does not within MONOTONE_EVALUATIONS and takes the rule (NaN).
-const MONOTONE_TOLERANCE = 1e-9;
-const MONOTONE_START_STRIDE = 24;
-const MONOTONE_EVALUATIONS = 24;
-const NEAR_ONE = 1e-6;
+// the nodes beyond a coarse node of ruleSum's trim take its neighbours' midpoint below this share of the sum
 const TAIL_TOLERANCE = 1e-10;
-const MONOTONE_MIDDLE = (DRAW_NODES.w.length - 1) / 2;
 // PREFIX[i]: the weight of nodes below i; SUFFIX[i]: of nodes at and above i (both summed from their own end,
 // so the small weights of the far nodes keep their relative precision)
 const PREFIX = new Float64Array(DRAW_NODES.w.length + 1);
 const SUFFIX = new Float64Array(DRAW_NODES.w.length + 1);
 for (let i = 0; i < DRAW_NODES.w.length; i++) PREFIX[i + 1] = (PREFIX[i] as number) + (DRAW_NODES.w[i] as number);
 for (let i = DRAW_NODES.w.length - 1; i >= 0; i--) SUFFIX[i] = (SUFFIX[i + 1] as number) + (DRAW_NODES.w[i] as number);
-const TOTAL_WEIGHT = PREFIX[DRAW_NODES.w.length] as number;
-// the weight of the nodes strictly between a and b
-function gapWeight(a: number, b: number): number {
-  if (b <= MONOTONE_MIDDLE) return (PREFIX[b] as number) - (PREFIX[a + 1] as number);
-  if (a >= MONOTONE_MIDDLE) return (SUFFIX[a + 1] as number) - (SUFFIX[b] as number);
-  return TOTAL_WEIGHT - (PREFIX[a + 1] as number) - (SUFFIX[b] as number);
-}
-// the evaluated nodes of a monotone sum, in order
-const ORDER = new Int32Array(DRAW_NODES.w.length);
-function monotoneSum(rising: boolean): number {
-  const { w } = DRAW_NODES;
-  const values = VALUES;
-  const last = values.length - 1;
-  let count = 0;
-  let floor = 0;
-  for (let i = 0; i <= last; i += MONOTONE_START_STRIDE) {
-    const value = nodeValue(i);
-    if (!(value >= 0)) return NaN;
-    ORDER[count++] = i;
-    const below = value * (rising ? (SUFFIX[i] as number) : (PREFIX[i + 1] as number));
-    if (below > floor) floor = below;
-  }
-  for (let added = 0; ; added++) {
-    let slack = 0;
-    let worst = -1;
-    let worstSlack = 0;
-    let sum = (w[0] as number) * (values[0] as number);
-    for (let k = 1; k < count; k++) {
-      const a = ORDER[k - 1] as number;
-      const b = ORDER[k] as number;
-      const fb = values[b] as number;
-      sum += (w[b] as number) * fb;
-      if (b - a < 2) continue;
-      const fa = values[a] as number;
-      const weight = gapWeight(a, b);
-      sum += 0.5 * (fa + fb) * weight;
-      const gap = Math.abs(fb - fa) * weight;
-      slack += gap;
-      if (gap > worstSlack) {
-        worstSlack = gap;
-        worst = k;
-      }
-    }
-    // relative to the sum and to its complement (a probability near 1 is compared by how far it is from 1); within
-    // 1e-6 of 1 the rule's own rounding decides the complement, so the rule sums
-    const complement = TOTAL_WEIGHT - (sum + 0.5 * slack);
-    if (complement < NEAR_ONE) return NaN;
-    if (0.5 * slack <= MONOTONE_TOLERANCE * Math.min(floor, complement)) return sum;
-    if (added >= MONOTONE_EVALUATIONS) return NaN;
-    const a = ORDER[worst - 1] as number;
-    const b = ORDER[worst] as number;
-    const middle = (a + b) >> 1;
-    const value = nodeValue(middle);
-    if (!(value >= 0)) return NaN;
-    ORDER.copyWithin(worst + 1, worst, count);
-    ORDER[worst] = middle;
-    count++;
-    const below = value * (rising ? (SUFFIX[middle] as number) : (PREFIX[middle + 1] as number));
-    if (below > floor) floor = below;
-  }
-}
-
 // Far below the scale (every draw's t/r at most 1/2) the Gaussian shares are power series in a = t/r, and the draws
 // make a log-normal: E[a^m] = (t/rms)^m·e^{(m·spread·ln 2)²/2} (the moments of a log-normal). The series below are
 // the ones gaussianBelow and gaussianEnergyBelow sum node by node there, so the closed form is the draw integral
@@ -1248,31 +1180,13 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
       return BELOW_LEVELS[slot] as number;
     }
   }
-  // Where the search starts. The largest of n elements passes 2^v at the median scale as a step of g at v½ (g = 1/2) of some width σ: read as
-  // a Gaussian step, g = Q((v − v½)/σ), its mixture over the draws is Q((v − v½)/√(σ² + spread²)), which crosses p
-  // at v½ + √(σ² + spread²)·Q⁻¹(p), with σ = (v_p − v½)/Q⁻¹(p) from g's own crossing v_p. That is within a lattice
-  // point in most cases, so the search starts there with single-point steps. The bracket it finds is the same from
-  // any start (see latticeCrossing); only the number of sums changes.
+  // Where the search starts (the any-above levels of p in (0, limit) are solved on their own sums above; what reaches
+  // here of them, p at or past 0 or the limit, takes the plain bracket). The bracket latticeCrossing finds is the same
+  // from any start; only the number of sums changes.
   const tolerance = (spread * DRAW_STEP) / 4;
   let start = NaN;
   let jump = Math.round(1 / DRAW_STEP);
-  if (decreasing && p < 0.25) {
-    // the Gaussian law's levels in closed form, where their error is a fraction of a lattice point
-    let half = NaN;
-    let level = NaN;
-    if (integrandLaw === GAUSSIAN && spread >= 0.25) {
-      half = gaussianMaxLevel(-Math.expm1(-LN2 / integrandCount));
-      level = gaussianMaxLevel(-Math.expm1(Math.log1p(-p) / integrandCount));
-    }
-    if (Number.isNaN(half) || Number.isNaN(level)) {
-      half = crossing(latticeValue, 0.5, true, tolerance);
-      level = crossing(latticeValue, p, true, tolerance);
-    }
-    const quantile = normalUpperQuantile(p);
-    const width = (level - half) / quantile;
-    start = half + Math.sqrt(width * width + spread * spread) * quantile;
-    jump = 1;
-  } else if (!decreasing && integrandLaw === GAUSSIAN && spread >= 0.25 && p > 0 && p < 0.05) {
+  if (!decreasing && integrandLaw === GAUSSIAN && spread >= 0.25 && p > 0 && p < 0.05) {
     // A small share below a level sits where the Gaussian share is still linear, P(|Z| ≤ a) ≈ √(2/π)·a (Abramowitz &
     // Stegun 7.1.5, first term), a = 2^(v − spread·z) over the draws, whose mean is 2^v·e^{(spread·ln 2)²/2} (the
     // moments of a log-normal): a start within a tenth of a lattice point in the spreads and levels checked
@@ -1301,17 +1215,6 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
     BELOW_LEVELS[slot] = level;
   }
   return level;
-}
-
-// The level v where one Gaussian magnitude passes 2^v with probability q, erfc(u) = q with 2^v = √2·u (for the
-// largest of n passing with probability P, q = 1 − (1 − P)^{1/n}), from the leading term of erfc's asymptotic series,
-// erfc(u) ≈ e^{−u²}/(u√π) (Abramowitz & Stegun 7.1.23), iterated on u² = −ln(q·u·√π). A start of the search only,
-// good to a few hundredths of a binade for q below 1e-2; NaN above, where the search finds its own start.
-function gaussianMaxLevel(q: number): number {
-  if (!(q > 0 && q < 1e-2)) return NaN;
-  let u = Math.sqrt(-Math.log(q));
-  for (let k = 0; k < 3; k++) u = Math.sqrt(-Math.log(q * u * Math.sqrt(Math.PI)));
-  return Math.log2(SQRT2 * u);
 }
 
 // The levels of lawMixtureCrossing's "below" per (law, element spread, spread, p), direct-mapped on the spread's
@@ -1434,9 +1337,6 @@ function roughUpperQuantile(q: number): number {
   return t - (2.515517 + t * (0.802853 + t * 0.010328)) / (1 + t * (1.432788 + t * (0.189269 + t * 0.001308)));
 }
 // the current any-above integrand at the median scale: g(v) = anyOf(share·above(1, 2^v), n)
-function anyAt(v: number): number {
-  return anyOf(integrandShare * lawAbove(1, 2 ** v), integrandCount);
-}
 function anyAtCount(v: number, n: number): number {
   return anyOf(integrandShare * lawAbove(1, 2 ** v), n);
 }
@@ -1446,9 +1346,6 @@ function anyAtCount(v: number, n: number): number {
 // FIT[0] A, FIT[1] v½, FIT[2] σ_v, FIT[3] the step rule's last derivative in x (a typed array, not module variables:
 // a double stored in one is boxed at every store, garbage on the hot path)
 const FIT = new Float64Array(4);
-function fitStep(): void {
-  fitStepOf(integrandCount);
-}
 function fitStepOf(n: number): void {
   const share = integrandShare;
   const limit = anyOf(share, n);
@@ -1510,10 +1407,7 @@ function rowSlot(countKey: number, n: number): number {
   REMAINDER_KEY[1] = integrandShare;
   REMAINDER_KEY[2] = countKey;
   REMAINDER_KEY[3] = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
-  let hash = 0x811c9dc5;
-  for (let i = 0; i < 8; i++) hash = Math.imul(hash ^ (REMAINDER_KEY_WORDS[i] as number), 0x01000193);
-  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
-  let slot = (hash ^ (hash >>> 12)) & (REMAINDER_SLOTS - 1);
+  let slot = hashSlot(REMAINDER_KEY_WORDS, REMAINDER_SLOTS);
   for (;;) {
     const at = slot * 4;
     const first = REMAINDER_KEYS[at] as number;
@@ -1782,7 +1676,7 @@ function uniformTerm(xi: number, x: number, s: number, kink: number, tau: number
   const decay = Math.exp(-xi);
   const w = tau * Math.exp(xi - decay);
   const z = kink + w;
-  return w * (1 + decay) * normalPdf(z) * anyAt(x - s * z);
+  return w * (1 + decay) * normalPdf(z) * anyAtCount(x - s * z, integrandCount);
 }
 
 // Which rule sums the current any-above integrand at spread s: STEP_RULE (fitStep and remainderRow then set),
@@ -1799,7 +1693,7 @@ function anyRule(s: number): number {
     FIT[2] = 0;
     return CLOSED_RULE;
   }
-  fitStep();
+  fitStepOf(integrandCount);
   if (integrandLaw === UNIFORM) return UNIFORM_RULE;
   const width = FIT[2] as number;
   if (!(width > 0) || !(width < STEP_WIDTH_LIMIT * s)) return DRAW_RULE;

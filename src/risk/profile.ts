@@ -3,7 +3,7 @@
  * smallest magnitudes) and the numbers that judge it against one format's range.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { normalSf, normalUpperQuantile } from "./_math.js";
+import { normalSf, normalUpperQuantile, hashSlot, hashWords } from "./_math.js";
 import { isConstantLike, isEmpty, nonzeroElements, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, lawMixtureCrossing, lawOverDraws } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
@@ -142,17 +142,6 @@ function shapeCode(shape: MagnitudeProfile["shape"]): number {
   }
 }
 
-// a key's 32-bit words hashed: FNV-1a over the words, then mixed
-function hashWords(words: Int32Array): number {
-  let hash = 0x811c9dc5;
-  for (let i = 0; i < words.length; i++) hash = Math.imul(hash ^ (words[i] as number), 0x01000193);
-  hash = Math.imul(hash ^ (hash >>> 15), 0x2c1b3c6d);
-  return hash ^ (hash >>> 12);
-}
-// the slot of a key's words in a table of `slots` (a power of two)
-function hashSlot(words: Int32Array, slots: number): number {
-  return hashWords(words) & (slots - 1);
-}
 
 // lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table
 function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): number {

@@ -18,6 +18,24 @@ function kinds(result: CheckResult, format: string): string[] {
   return result.formats.find((f) => f.format === format)?.findings.map((f) => f.kind) ?? [];
 }
 
+
+// A vanishing epsilon told alike by its hazard, the optimizer check and the verdicts: the expected zeros per step sit
+// clear of one (README.md's thresholds table: fails from one per step, at risk below), with margin. Returns the
+// hazard's binary16 evaluation.
+function expectEpsilonAgreement(result: ReturnType<typeof check>, expected: string) {
+  const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant");
+  const evaluation = epsilon?.evaluations.find((e) => e.format === "binary16");
+  const zeros = evaluation?.value ?? Number.NaN;
+  expect(expected === "fails" ? zeros > 1.2 : zeros < 0.8).toBe(true);
+  expect(epsilon?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", expected]]);
+  expect(result.optimizer.epsilon?.vanishes).toBe(true);
+  expect(result.optimizer.reportedAsHazards).toContain("optimizer-constant");
+  expect(result.optimizer.verdict).toBe(expected);
+  expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
+  expect(result.verdict).toBe(expected);
+  return evaluation;
+}
+
 describe("purpose-built hazards, end to end", () => {
   it("a sum of squares over 4096 features with input rms 4.2 overflows binary16 (√(65504/4096) = 4.0; DESIGN.md §5 item 7)", () => {
     const result = check(load(`${HAZARDS}/norm-sum-of-squares.yaml`));
@@ -60,16 +78,7 @@ describe("purpose-built hazards, end to end", () => {
     ["1.5", "at-risk"],
   ])("epsilon rounding to 0 in binary16 states, input scale %s: %s in the hazard, the optimizer check and the verdict", (scale, expected) => {
     const result = check(load(`${HAZARDS}/adam-epsilon-boundary.yaml`, (t) => t.replace("scale: 0.75", `scale: ${scale}`)));
-    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant");
-    const zeros = epsilon?.evaluations.find((e) => e.format === "binary16")?.value ?? Number.NaN;
-    // the spec sits on either side of one expected zero per step, with margin
-    expect(expected === "fails" ? zeros > 1.2 : zeros < 0.8).toBe(true);
-    expect(epsilon?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", expected]]);
-    expect(result.optimizer.epsilon?.vanishes).toBe(true);
-    expect(result.optimizer.reportedAsHazards).toContain("optimizer-constant");
-    expect(result.optimizer.verdict).toBe(expected);
-    expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
-    expect(result.verdict).toBe(expected);
+    expectEpsilonAgreement(result, expected);
   });
 
   // README.md's thresholds table: a share of nonzero elements flushed to zero (Adam's second moment included) is at
@@ -108,22 +117,14 @@ describe("purpose-built hazards, end to end", () => {
     ["8", "at-risk"],
   ])("epsilon rounding to 0 in binary16 states across three small layers, input scale %s: %s in the hazard, the optimizer check and the verdict", (scale, expected) => {
     const result = check(load(`${HAZARDS}/adam-epsilon-network.yaml`, (t) => t.replace("scale: 3.5", `scale: ${scale}`)));
-    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant");
-    const evaluation = epsilon?.evaluations.find((e) => e.format === "binary16");
-    const zeros = evaluation?.value ?? Number.NaN;
-    expect(expected === "fails" ? zeros > 1.2 : zeros < 0.8).toBe(true);
+    const evaluation = expectEpsilonAgreement(result, expected);
     // every layer alone stays below one expected zero per step (binary16 flush bound 2^-25, β2 = 0.999): only the sum decides
     const gradients = result.tensors.filter((t) => t.role === "weight-gradient");
     expect(gradients).toHaveLength(3);
     for (const t of gradients) expect(Math.max(zeroSecondMoments(t.start, 2 ** -25, 0.999), zeroSecondMoments(t.end, 2 ** -25, 0.999))).toBeLessThan(0.95);
-    expect(epsilon?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", expected]]);
     if (expected === "fails") {
       expect(evaluation?.sentence).toContain("most in hidden-a/weight-gradient");
     }
-    expect(result.optimizer.epsilon?.vanishes).toBe(true);
-    expect(result.optimizer.verdict).toBe(expected);
-    expect(result.formats.find((f) => f.format === "binary16")?.verdict).toBe(expected);
-    expect(result.verdict).toBe(expected);
   });
 
   it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {

@@ -131,8 +131,7 @@ describe("draw sums of the element laws", () => {
 
   // the Gaussian "below" levels, asked here of the search's own lattice (viaRows false), are held to the levels read
   // off the shared rows in the last test of this block. The searches start from different levels and step
-  // differently (any-above from the step of g shifted by the spread, in single lattice points), so this also holds
-  // that the bracket found does not depend on the start
+  // differently, so this also holds that the bracket found does not depend on the start
   // (the any-above levels are solved on the any-above sums themselves: test/risk/any-above.test.ts)
   it("lattice crossings equal mixtureCrossing with the law's closures", () => {
     for (const { profile } of sweep()) {

@@ -49,7 +49,7 @@ describe("a step in the draws", () => {
     expect(relative(lawOverDraws(constant, "any-above", 0.25 * 2 ** 0.15), normalSf(0.5))).toBeLessThan(1e-7);
   });
 
-  it("a coherent accumulation overflows exactly when terms·r passes the level: Q((log2(level/terms) − log2 rms)/spread)", () => {
+  it("a coherent accumulation overflows exactly when terms·r passes the level: the draw integral of that indicator", () => {
     // binary32 accumulator (overflow from 2^128 by IEEE 754-2019 Table 3.5 and round to nearest: max + half an ulp);
     // positive terms add coherently (the hazard's reflection-free case)
     const level = 2 ** 128 - 2 ** 103;
@@ -63,7 +63,17 @@ describe("a step in the draws", () => {
     const context = { activations: limits, weights: limits, gradients: limits, optimizerStates: limits, accumulate: limits, thresholds, lossScale: 1, workers: 1, workerGradients: "sum", beta2: 0.999 };
     const check = evaluateHazard(site, context as never);
     const overflow = check.evaluations.find((e) => e.measure === "overflow-risk")!;
-    expect(relative(overflow.value, normalSf(1.37))).toBeLessThan(1e-9);
+    // the definition's integral, E_z[terms·rms·2^(spread·z) ≥ level]: the indicator's step found by bisection on the
+    // indicator itself, then the normal mass above it
+    const passes = (z: number): boolean => terms * rms * 2 ** (spread * z) >= level;
+    let below = -12;
+    let above = 12;
+    while (above - below > 1e-13) {
+      const middle = 0.5 * (below + above);
+      if (passes(middle)) above = middle;
+      else below = middle;
+    }
+    expect(relative(overflow.value, normalSf(above))).toBeLessThan(1e-9);
   });
 });
 
