@@ -4,8 +4,7 @@ import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { formatSpecIssue, formatSpecPath } from "../spec/index.js";
-import { loadSpecReporting } from "./load-spec.js";
+import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 
@@ -62,11 +61,7 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
     return check(loaded.spec, options, measurements);
   } catch (error) {
     if (error instanceof CheckInputError) {
-      for (const issue of error.issues) {
-        const at = loaded.locate(issue.path);
-        process.stderr.write(formatSpecIssue({ ...at, path: formatSpecPath(issue.path), message: issue.message }) + "\n");
-      }
-      raiseExitCode(EXIT.inputError);
+      reportGraphIssues(loaded, error.issues);
       return undefined;
     }
     if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);

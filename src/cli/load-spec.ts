@@ -1,5 +1,6 @@
 /** Loading one spec file for a command, with its problems reported the way every command reports them. */
-import { formatSpecIssue, loadSpec, type SpecResult } from "../spec/index.js";
+import type { GraphIssue } from "../graph/index.js";
+import { formatSpecIssue, formatSpecPath, loadSpec, type SpecResult } from "../spec/index.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 
 /**
@@ -15,4 +16,12 @@ export async function loadSpecReporting(path: string): Promise<Extract<SpecResul
   }
   for (const warning of loaded.warnings) process.stderr.write(`warning: ${formatSpecIssue(warning)}\n`);
   return loaded;
+}
+
+/** The problems of a loaded spec's network (it cannot be built), positioned in its file; sets the input-error exit code. */
+export function reportGraphIssues(loaded: Extract<SpecResult, { ok: true }>, issues: readonly GraphIssue[]): void {
+  for (const issue of issues) {
+    process.stderr.write(formatSpecIssue({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }) + "\n");
+  }
+  raiseExitCode(EXIT.inputError);
 }
