@@ -12,6 +12,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
+import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
 export interface ScaleRemedy {
@@ -448,6 +449,24 @@ class OverflowNarrowing implements OverflowBounds {
   }
 }
 
+/**
+ * 2^k as a number: exactly while every digit is (up to 2^53; beyond it a double prints its shortest round-trip
+ * digits, e.g. 72057594037927940 for 2^56, which is not 2^56), in three significant digits otherwise.
+ */
+function powerOfTwoValue(k: number): string {
+  return k >= 0 && k <= 53 ? String(2 ** k) : plainNumber(2 ** k);
+}
+
+/** Where the simulated dynamic scale spends the second half of the horizon, in powers of two. */
+function settledWords(dynamic: DynamicScaleResult): string {
+  const low = dynamic.settledLowest;
+  const high = dynamic.settledHighest;
+  if (low !== high) return `it settles between ${scaleWords(low)} and ${scaleWords(high)}`;
+  if (low === dynamic.settings.lowestScale) return `it falls to its lowest allowed scale, ${scaleWords(low)}, and stays there`;
+  if (low === dynamic.settings.highestScale) return `it rises to its highest allowed scale, ${scaleWords(low)}, and stays there`;
+  return `it settles at ${scaleWords(low)}`;
+}
+
 function binades(n: number): string {
   return `${n} binade${n === 1 ? "" : "s"}`;
 }
@@ -459,7 +478,7 @@ function describe(
   requested: LossScaleAnswer["requested"],
 ): string[] {
   const out: string[] = [];
-  const pow = (k: number) => `2^${k} = ${2 ** k >= 1 ? 2 ** k : (2 ** k).toExponential(2)}`;
+  const pow = (k: number) => `2^${k} = ${powerOfTwoValue(k)}`;
   if (window.empty) {
     if (window.gapBinades !== null) {
       out.push(
@@ -528,7 +547,7 @@ function rankRemedies(
   remedies.push({
     kind: "dynamic-scale",
     works: skipRate < 0.01 && dynamic.stepsFlushingTooMuch < 0.01 * dynamic.steps,
-    sentence: `A dynamic loss scale skips ${dynamic.skippedSteps} of ${dynamic.steps} simulated steps (${(100 * skipRate).toPrecision(2)}%) and spends ${dynamic.stepsFlushingTooMuch} steps flushing more than the tolerance; it settles between ${dynamic.settledLowest} and ${dynamic.settledHighest}.`,
+    sentence: `A dynamic loss scale skips ${dynamic.skippedSteps} of ${dynamic.steps} simulated steps (${percent(skipRate)}) and spends ${dynamic.stepsFlushingTooMuch} steps flushing more than the tolerance; ${settledWords(dynamic)}.`,
   });
   // 3. bfloat16 gradients: the same tensors against bfloat16's range
   if (plan.gradients !== "bfloat16") {

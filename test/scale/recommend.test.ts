@@ -93,3 +93,34 @@ describe("lossScaleAnswer", () => {
     expect(answer.dynamic).toBeNull();
   });
 });
+
+describe("the loss-scale answer's wording", () => {
+  const constant = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "constant", rms, log2Spread: 0 });
+  // "large" sits at 2^17, above binary16's largest finite value 65504 (IEEE 754-2019 §3.6, binary16: emax 15, p 11), so
+  // it overflows at every scale from 2^-1 up; "tiny" at 2^-80 flushes unless 2^-80·S reaches binary16's subnormal range
+  // (2^-24 and above, IEEE 754-2019 §3.3): the window is empty, and a dynamic scale can only skip.
+  const answer = lossScaleAnswer(prediction(gradient("large/activation-gradient", constant(2 ** 17)), gradient("tiny/activation-gradient", constant(2 ** -80))), plan, {
+    steps: 2000,
+  });
+
+  it("prints powers of two beyond 2^53 in three digits, not as a double's shortest digits", () => {
+    const sentence = answer.sentences[0]!;
+    expect(answer.window.empty).toBe(true);
+    expect(answer.window.lowestLog2).toBeGreaterThan(53);
+    // 2^56 = 72057594037927936 exactly (BigInt arithmetic); String(2 ** 56) gives 72057594037927940, which is not it
+    expect(String(2n ** 56n)).toBe("72057594037927936");
+    expect(sentence).toContain(`needs at least 2^${answer.window.lowestLog2} = `);
+    expect(sentence).not.toMatch(/= \d{17,}/);
+    expect(sentence).toMatch(new RegExp(`2\\^${answer.window.lowestLog2} = \\d\\.\\d+e\\d+`));
+    // below 1 in plain decimals where that reads well: 2^-2 = 0.25
+    expect(sentence).toContain(`2^${answer.window.highestLog2} = ${2 ** answer.window.highestLog2!}`);
+  });
+
+  it("says the dynamic scale falls to its floor when every step overflows, with the share as a percentage", () => {
+    const dynamic = answer.remedies.find((r) => r.kind === "dynamic-scale")!;
+    expect(answer.dynamic!.skippedSteps).toBe(2000);
+    expect(dynamic.sentence).toContain("skips 2000 of 2000 simulated steps (100%)");
+    expect(dynamic.sentence).toContain("it falls to its lowest allowed scale, 1, and stays there");
+    expect(dynamic.sentence).not.toContain("between 1 and 1");
+  });
+});
