@@ -174,13 +174,27 @@ function explain(ranked: PlanOutcome[]): string[] {
     lines.push("No plan is expected to train safely; the least broken comes first.");
   } else {
     const best = safe[0]!;
-    lines.push(
-      `${best.plan.name} is the cheapest plan expected to train safely (${best.cost.bytesPerParameter} bytes per parameter, ${best.cost.bytesPerActivation} per activation element${best.savedShare > 0 ? `, ${(100 * best.savedShare).toFixed(0)}% less memory than binary32` : ""}).`,
-    );
+    if (best.verdict === "fits") {
+      lines.push(`${best.plan.name} is the cheapest plan expected to train safely (${costWords(best)}).`);
+    } else {
+      // an at-risk plan is not expected to fail, but it is not "safe" either: say so, and name the cheapest that fits
+      lines.push(`${best.plan.name} is the cheapest plan not expected to fail, but it is at risk (${costWords(best)}).`);
+      const fitting = safe.find((o) => o.verdict === "fits");
+      lines.push(
+        fitting === undefined
+          ? "No plan fits without a risk."
+          : `${fitting.plan.name} is the cheapest plan with no risk found (${costWords(fitting)}).`,
+      );
+    }
   }
   for (const o of ranked) {
     if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely: ${o.firstProblem ?? "see its findings"}`);
     else if (o.verdict === "at-risk") lines.push(`${o.plan.name} trains, with risks: ${o.firstProblem ?? "see its findings"}`);
   }
   return lines;
+}
+
+function costWords(o: PlanOutcome): string {
+  const saved = o.savedShare > 0 ? `, ${(100 * o.savedShare).toFixed(0)}% less memory than binary32` : "";
+  return `${o.cost.bytesPerParameter} bytes per parameter, ${o.cost.bytesPerActivation} per activation element${saved}`;
 }

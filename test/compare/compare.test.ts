@@ -21,6 +21,13 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
       // the ranking is explained: the first line names the best plan, or says none trains safely
       const best = comparison.outcomes[0]!;
       expect(comparison.explanation[0]).toContain(best.trainsSafely ? best.plan.name : "No plan");
+      // an at-risk plan is never called safe; when it ranks first, the cheapest plan that fits is named next to it
+      if (best.verdict === "at-risk") {
+        expect(comparison.explanation[0]).not.toContain("safely");
+        expect(comparison.explanation[0]).toContain("at risk");
+        const fitting = comparison.outcomes.find((o) => o.verdict === "fits");
+        expect(comparison.explanation[1]).toBe(fitting === undefined ? "No plan fits without a risk." : expect.stringContaining(fitting.plan.name));
+      } else if (best.trainsSafely) expect(comparison.explanation[0]).toContain("expected to train safely");
       // plans that train safely come before those that do not, and among them the cheapest first
       const safe = comparison.outcomes.filter((o) => o.trainsSafely);
       expect(comparison.outcomes.slice(0, safe.length)).toEqual(safe);
