@@ -26,7 +26,7 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
         expect(comparison.explanation[0]).not.toContain("safely");
         expect(comparison.explanation[0]).toContain("at risk");
         const fitting = comparison.outcomes.find((o) => o.verdict === "fits");
-        expect(comparison.explanation[1]).toBe(fitting === undefined ? "No plan fits without a risk." : expect.stringContaining(fitting.plan.name));
+        expect(comparison.explanation[1]).toEqual(fitting === undefined ? "No plan fits without a risk." : expect.stringContaining(fitting.plan.name));
       } else if (best.trainsSafely) expect(comparison.explanation[0]).toContain("expected to train safely");
       // plans that train safely come before those that do not, and among them the cheapest first
       const safe = comparison.outcomes.filter((o) => o.trainsSafely);
