@@ -351,7 +351,10 @@ function buildSchemas(z: typeof Zod) {
       ],
       {
         error: (issue) =>
-          issue.code === "invalid_union" && inputKindCount(issue.input) > 1
+          // an absent `input` is a missing key like any other required key, not "a mapping, got nothing"
+          issue.input === undefined
+            ? "missing key"
+            : issue.code === "invalid_union" && inputKindCount(issue.input) > 1
             ? `${FINAL_MESSAGE}give one kind of input: features (with positions, scale), tokens, or channels, height and width (with scale)`
             : issue.code === "invalid_union" && inputKindCount(issue.input) === 0 && typeof issue.input === "object" && issue.input !== null
               ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width`
