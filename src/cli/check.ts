@@ -1,5 +1,5 @@
 import { check, CheckInputError, loadSpecMeasurements } from "../check.js";
-import { FORMAT_NAMES, getFormat, type FormatName } from "../formats/index.js";
+import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
@@ -7,6 +7,7 @@ import type { CheckOptions, CheckResult } from "../risk/index.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { parseFormatList } from "./lists.js";
 
 /** Options shared by `check` and `explain`. */
 export interface JudgeFlags {
@@ -17,19 +18,7 @@ export interface JudgeFlags {
 
 /** Parse `--format a,b --format c` into format names (aliases such as fp16 accepted). */
 function parseFormats(values: readonly string[] | undefined): FormatName[] | undefined {
-  if (values === undefined) return undefined;
-  const names: FormatName[] = [];
-  for (const value of values.flatMap((v) => v.split(","))) {
-    const text = value.trim();
-    if (text === "") continue;
-    try {
-      names.push(getFormat(text).name);
-    } catch {
-      throw new UserError(`--format: unknown format "${text}"; accepted: ${FORMAT_NAMES.join(", ")}`);
-    }
-  }
-  if (names.length === 0) throw new UserError(`--format: give at least one format; accepted: ${FORMAT_NAMES.join(", ")}`);
-  return names;
+  return values === undefined ? undefined : parseFormatList("--format", values).map((format) => format.name);
 }
 
 /** `--format`, `--plan` and `--loss-scale` as check options: one reading for every path (`check`, `check --vary`, `explain`, `report`). */

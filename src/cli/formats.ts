@@ -1,6 +1,6 @@
-import { FORMAT_NAMES, FORMATS, getFormat, type Format } from "../formats/index.js";
+import { FORMAT_NAMES, FORMATS, type Format } from "../formats/index.js";
 import { renderTable, type TableColumn } from "../report/table.js";
-import { UserError } from "./errors.js";
+import { parseFormatList } from "./lists.js";
 
 /** One format's limits as plain JSON: every number exact; Infinity is written as null. */
 export interface FormatJson {
@@ -154,15 +154,7 @@ export function renderFormatsTable(formats: readonly Format[]): string {
 
 /** `headroom formats`: a table of the number formats and their limits (or JSON). */
 export async function runFormats(names: string[], options: { json?: boolean }): Promise<void> {
-  const formats = names.length === 0 ? FORMAT_NAMES.map((name) => FORMATS[name]) : names.map(lookUp);
+  const formats = names.length === 0 ? FORMAT_NAMES.map((name) => FORMATS[name]) : parseFormatList("formats", names);
   if (options.json) process.stdout.write(JSON.stringify(formats.map(formatJson), null, 2) + "\n");
   else process.stdout.write(renderFormatsTable(formats));
-}
-
-function lookUp(name: string): Format {
-  try {
-    return getFormat(name);
-  } catch (error) {
-    throw new UserError(error instanceof Error ? error.message : String(error));
-  }
 }

@@ -1,16 +1,14 @@
 import { createRandom } from "../numeric/index.js";
 import { createInterface } from "node:readline";
 import {
-  FORMAT_NAMES,
   describeRounding,
-  getFormat,
-  type Format,
   type OverflowMode,
   type RoundOptions,
   type RoundingDescription,
   type RoundingMode,
 } from "../formats/index.js";
 import { UserError } from "./errors.js";
+import { parseFormatList } from "./lists.js";
 
 const ACCEPTED_VALUES =
   "accepted: a decimal number (1.5, -65519, 1e-8, inf, nan) or 0x followed by 16 hex digits (a binary64 bit pattern)";
@@ -152,18 +150,6 @@ class Output {
   }
 }
 
-function parseFormats(list: string): Format[] {
-  const names = list.split(",").map((name) => name.trim()).filter((name) => name !== "");
-  if (names.length === 0) throw new UserError(`--to needs at least one format; accepted: ${FORMAT_NAMES.join(", ")}`);
-  return names.map((name) => {
-    try {
-      return getFormat(name);
-    } catch {
-      throw new UserError(`unknown format "${name}" in --to; accepted: ${FORMAT_NAMES.join(", ")} (comma-separated)`);
-    }
-  });
-}
-
 function parseSeed(text: string): number {
   if (!/^\d+$/.test(text) || Number(text) > 0xffffffff) {
     throw new UserError(`--seed "${text}" is not accepted; expected a whole number from 0 to 4294967295`);
@@ -182,7 +168,7 @@ export async function runRound(values: string[], options: RoundCommandOptions): 
   if (unknown !== undefined) {
     throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
   }
-  const formats = parseFormats(options.to);
+  const formats = parseFormatList("--to", options.to);
   const roundOptions: RoundOptions = {
     mode: options.rounding,
     ...(options.overflow !== undefined ? { overflow: options.overflow } : {}),

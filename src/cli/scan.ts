@@ -4,6 +4,7 @@ import { castTarget, expandPaths, scanExitCode, scanFiles, type ScanIssue, type 
 import { renderScanCsv, renderScanJson, renderScanTable } from "../report/scan.js";
 import { colorEnabled, createStyle } from "../report/style.js";
 import { raiseExitCode, UserError } from "./errors.js";
+import { parseFormatList } from "./lists.js";
 import { createProgress } from "./progress.js";
 
 /** Files at least this large together get a progress bar (when stderr is a terminal). */
@@ -27,15 +28,9 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   if (!(tolerance >= 0 && tolerance <= 1)) {
     throw new UserError(`--tolerance ${JSON.stringify(options.tolerance)}: expected a share between 0 and 1, e.g. 0.001`);
   }
-  const names = options.to.split(",").map((s) => s.trim()).filter((s) => s !== "");
-  if (names.length === 0) throw new UserError("--to: name at least one format, e.g. --to binary16,bfloat16,e4m3");
-  const targets = names.map((name) => {
-    try {
-      return castTarget(name, { ...(options.overflow ? { overflow: options.overflow } : {}), flushSubnormals: options.flushSubnormals === true });
-    } catch (error) {
-      throw new UserError(`--to: ${error instanceof Error ? error.message : String(error)}`);
-    }
-  });
+  const targets = parseFormatList("--to", options.to).map((format) =>
+    castTarget(format, { ...(options.overflow ? { overflow: options.overflow } : {}), flushSubnormals: options.flushSubnormals === true }),
+  );
 
   const expanded = await expandPaths(patterns);
   const sizes = await Promise.all(expanded.paths.map((p) => stat(p).then((s) => (s.isFile() ? s.size : 0), () => 0)));

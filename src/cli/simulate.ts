@@ -19,6 +19,7 @@ import { parseLossScale } from "./loss-scale.js";
 import { writeFileAtomic } from "./shared.js";
 import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { splitList } from "./lists.js";
 
 interface SimulateFlags {
   steps: string;
@@ -85,7 +86,9 @@ function positive(flag: string, text: string): number {
 
 const SHRINK_KEYS = ["width", "batch", "positions", "classes", "image"] as const;
 
-/** `4` (widths, batch and positions ÷4) or `width=4,batch=8,...`. */
+const SHRINK_ACCEPTED = `expected a factor such as 4, or ${SHRINK_KEYS.map((k) => `${k}=N`).join(",")} with whole N ≥ 1`;
+
+/** `4` (widths, batch and positions ÷4) or `width=4,batch=8,...` (a list read as every list option is, then its items). */
 export function parseShrink(text: string): Partial<ShrinkFactors> {
   const trimmed = text.trim();
   if (/^\d+$/.test(trimmed)) {
@@ -94,12 +97,14 @@ export function parseShrink(text: string): Partial<ShrinkFactors> {
     return { width: f, batch: f, positions: f };
   }
   const out: Partial<ShrinkFactors> = {};
-  for (const part of trimmed.split(",")) {
-    const match = /^\s*([a-z]+)\s*=\s*(\d+)\s*$/.exec(part);
+  for (const part of splitList("--shrink", text, "factor", SHRINK_ACCEPTED)) {
+    const match = /^([a-z]+)\s*=\s*(\d+)$/.exec(part);
     const key = match?.[1] as (typeof SHRINK_KEYS)[number] | undefined;
     if (match === null || key === undefined || !SHRINK_KEYS.includes(key) || Number(match[2]) < 1) {
-      throw new UserError(`--shrink "${text}": expected a factor such as 4, or ${SHRINK_KEYS.map((k) => `${k}=N`).join(",")} with whole N ≥ 1`);
+      throw new UserError(`--shrink "${text}": ${SHRINK_ACCEPTED}`);
     }
+    // two factors for one key may differ: neither is taken silently
+    if (out[key] !== undefined) throw new UserError(`--shrink "${text}": ${key} is given twice; give each factor once`);
     out[key] = Number(match[2]);
   }
   return out;

@@ -92,7 +92,7 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     const run = runCli(["check", "--format", "fp12", "specs/deep-relu-he.yaml"]);
     expect(run.status).toBe(2);
     expect(run.stderr).toBe(
-      'headroom: --format: unknown format "fp12"; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3\n',
+      'headroom: --format: unknown format "fp12"; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3 (comma-separated)\n',
     );
   });
 

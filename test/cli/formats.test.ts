@@ -35,6 +35,6 @@ describe("headroom formats (the built binary)", () => {
     const run = runCli(["formats", "float8"]);
     expect(run.status).toBe(2);
     expect(run.stdout).toBe("");
-    expect(run.stderr).toBe('headroom: unknown format "float8"; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3\n');
+    expect(run.stderr).toBe('headroom: formats: unknown format "float8"; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3 (comma-separated)\n');
   });
 });

@@ -93,7 +93,7 @@ describe("headroom round (the built binary)", () => {
   it("bad input: one line naming what was wrong and what is accepted, exit code 2, no stack trace", () => {
     const cases: [string[], string | undefined, RegExp][] = [
       [["round", "abc", "--to", "binary16"], undefined, /^headroom: "abc" is not a number; accepted: a decimal number .* or 0x followed by 16 hex digits/],
-      [["round", "1", "--to", "binary8"], undefined, /^headroom: unknown format "binary8" in --to; accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3/],
+      [["round", "1", "--to", "binary8"], undefined, /^headroom: --to: unknown format "binary8" \(did you mean "binary16"\?\); accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3/],
       [["round", "0x3ff00000", "--to", "binary16"], undefined, /^headroom: malformed binary64 bit pattern "0x3ff00000": expected 0x followed by exactly 16 hex digits/],
       [["round", "0x3ff000000000000g", "--to", "binary16"], undefined, /^headroom: malformed binary64 bit pattern/],
       [["round", "-", "--to", "binary16"], "", /^headroom: no values on stdin; expected one value per line/],
