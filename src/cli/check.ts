@@ -8,6 +8,7 @@ import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
+import { textWidth } from "./terminal.js";
 
 /** Options shared by `check` and `explain`. */
 export interface JudgeFlags {
@@ -86,7 +87,7 @@ export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
             renderCheckText(result, {
               all: flags.all ?? false,
               style: createStyle(colorEnabled(process.stdout, process.env)),
-              width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+              width: textWidth(),
             }),
     );
     if (result.verdict === "fails") raiseExitCode(EXIT.findings);

@@ -5,6 +5,7 @@ import { colorEnabled, createStyle } from "../report/style.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { textWidth } from "./terminal.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
 export async function runCompare(path: string, flags: { onlySpecPlans?: boolean; json?: boolean }): Promise<void> {
@@ -26,7 +27,7 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
       ? renderCompareJson(comparison)
       : renderCompareText(comparison, {
           style: createStyle(colorEnabled(process.stdout, process.env)),
-          width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+          width: textWidth(),
         }),
   );
   if (!comparison.outcomes.some((o) => o.trainsSafely)) raiseExitCode(EXIT.findings);

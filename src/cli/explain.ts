@@ -3,6 +3,7 @@ import { colorEnabled, createStyle } from "../report/style.js";
 import { findTensor } from "../risk/index.js";
 import { loadAndCheck, type JudgeFlags } from "./check.js";
 import { UserError } from "./errors.js";
+import { textWidth } from "./terminal.js";
 
 /** `headroom explain SPEC TENSOR`: the ledger of one tensor, factor by factor, and its risk. */
 export async function runExplain(path: string, words: string[], flags: JudgeFlags & { json?: boolean }): Promise<void> {
@@ -26,7 +27,7 @@ export async function runExplain(path: string, words: string[], flags: JudgeFlag
   process.stdout.write(
     renderExplainText(result, found.tensor, {
       style: createStyle(colorEnabled(process.stdout, process.env)),
-      width: Math.max(80, Math.min(140, process.stdout.columns ?? 100)),
+      width: textWidth(),
     }),
   );
 }

@@ -1,0 +1,7 @@
+/**
+ * The width text reports wrap at: the terminal's, kept within 80 to 140 columns so sentences stay readable on narrow
+ * and very wide terminals; 100 when stdout is not a terminal (a file, a pipe). Common practice for line length.
+ */
+export function textWidth(): number {
+  return Math.max(80, Math.min(140, process.stdout.columns ?? 100));
+}
