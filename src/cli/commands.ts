@@ -13,7 +13,8 @@ import { register as simulate } from "./commands/simulate.js";
 /**
  * Each file of src/cli/commands/ exports one `register` that adds its command to the program. It holds only the
  * definition (arguments, options, help); the action imports the command's implementation (src/cli/<command>.ts)
- * when the command runs, so `--help` and every command load only what they use.
+ * when the command runs (`lazyAction`), so `--help` and every command load only what they use. The parts several
+ * definitions share (the `<spec>` argument, `--plan`, repeatable options) are in commands/define.ts.
  */
 export type RegisterCommand = (program: Command) => void;
 

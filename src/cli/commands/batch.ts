@@ -1,6 +1,6 @@
 import { Option } from "commander";
 import type { RegisterCommand } from "../commands.js";
-import type { runBatchCommand } from "../batch.js";
+import { lazyAction, planOption, varyOption } from "./define.js";
 
 /** `headroom batch PATH...`: check many specs in parallel; one row per spec (or variant) (run by src/cli/batch.ts). */
 export const register: RegisterCommand = (program) => {
@@ -18,18 +18,8 @@ export const register: RegisterCommand = (program) => {
     .addOption(new Option("--csv", "print CSV (RFC 4180: CRLF line ends, quoted fields)").conflicts(["jsonl", "md"]))
     .addOption(new Option("--md", "print a Markdown table for CI comments").conflicts(["jsonl", "csv"]))
     .addOption(new Option("--workers <n>", "worker threads (default: one per core)"))
-    .addOption(new Option("--plan <name>", "judge this plan of each spec's `plans` instead of its `precision`"))
+    .addOption(planOption("judge", "each spec's"))
     .addOption(new Option("--color", "colour the table even when stdout is not a terminal"))
     .addOption(new Option("--no-color", "never colour the table"))
-    .action(async (...args: Parameters<typeof runBatchCommand>) => {
-      const { runBatchCommand } = await import("../batch.js");
-      await runBatchCommand(...args);
-    });
+    .action(lazyAction(() => import("../batch.js").then((m) => m.runBatchCommand)));
 };
-
-/** The `--vary` option, as `check` and `batch` take it (repeatable). */
-export function varyOption(): Option {
-  return new Option("--vary <KEY=V1,V2,...>", "check each value of a key in the spec (e.g. training.batch=8,16); repeat for the cross product").argParser(
-    (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
-  );
-}

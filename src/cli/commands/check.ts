@@ -1,31 +1,28 @@
 import { Option, type Command } from "commander";
 import { FORMAT_NAMES } from "../../formats/names.js";
 import type { RegisterCommand } from "../commands.js";
-import type { runCheck } from "../check.js";
-import { varyOption } from "./batch.js";
+import { lazyAction, planOption, repeatable, specCommand, varyOption } from "./define.js";
 
-/** The options `check` and `explain` share. */
+/** The options `check`, `explain` and `report` share. */
 export function addJudgeOptions(command: Command): Command {
   return command
     .addOption(
-      new Option(
-        "--format <formats>",
-        `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")}); ` +
-          "with no loss scale given, each is judged at the pick of its own gradients' window (none for bfloat16); " +
-          "the optimizer is still answered for the plan, but counts in the verdict only in the plan's formats judged",
-      ).argParser(
-        (value: string, previous: string[] | undefined) => [...(previous ?? []), value],
+      repeatable(
+        new Option(
+          "--format <formats>",
+          `judge these formats instead of the plan's (comma-separated or repeated; ${FORMAT_NAMES.join(", ")}); ` +
+            "with no loss scale given, each is judged at the pick of its own gradients' window (none for bfloat16); " +
+            "the optimizer is still answered for the plan, but counts in the verdict only in the plan's formats judged",
+        ),
       ),
     )
-    .addOption(new Option("--plan <name>", "judge this plan of the spec's `plans` instead of its `precision`"))
+    .addOption(planOption("judge"))
     .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale, a power of two, instead of the plan's"));
 }
 
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards (run by src/cli/check.ts). */
 export const register: RegisterCommand = (program) => {
-  const command = program
-    .command("check")
-    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
+  const command = specCommand(program, "check")
     .description(
       "Judge a network spec against its precision plan: a verdict per format (fits, at risk, fails) with the reasons, " +
         "the tensors at risk and the operation hazards. Exit code 1 when a format fails, 2 for input errors. " +
@@ -35,8 +32,5 @@ export const register: RegisterCommand = (program) => {
     .option("--json", "print the whole result as JSON (fields documented in README.md)")
     .addOption(new Option("--md", "print Markdown for a CI comment").conflicts("json"))
     .addOption(varyOption());
-  addJudgeOptions(command).action(async (...args: Parameters<typeof runCheck>) => {
-    const { runCheck } = await import("../check.js");
-    await runCheck(...args);
-  });
+  addJudgeOptions(command).action(lazyAction(() => import("../check.js").then((m) => m.runCheck)));
 };

@@ -1,12 +1,9 @@
-import type { Command } from "commander";
 import type { RegisterCommand } from "../commands.js";
-import type { runCompare } from "../compare.js";
+import { lazyAction, specCommand } from "./define.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
-export const register: RegisterCommand = (program: Command) => {
-  program
-    .command("compare")
-    .argument("<spec>", "network spec file (.yaml, .yml or .json)")
+export const register: RegisterCommand = (program) => {
+  specCommand(program, "compare")
     .description(
       "Evaluate several precision plans for one network (all binary32; binary16 or bfloat16 with a master copy; bfloat16 " +
         "only; 8-bit with scale factors; and the spec's own plans) and rank them: the cheapest plan expected to train " +
@@ -14,8 +11,5 @@ export const register: RegisterCommand = (program: Command) => {
     )
     .option("--only-spec-plans", "compare only the spec's own plans (its precision and plans)")
     .option("--json", "print the whole comparison as JSON")
-    .action(async (...args: Parameters<typeof runCompare>) => {
-      const { runCompare } = await import("../compare.js");
-      await runCompare(...args);
-    });
+    .action(lazyAction(() => import("../compare.js").then((m) => m.runCompare)));
 };

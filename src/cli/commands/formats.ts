@@ -1,6 +1,6 @@
 import { FORMAT_NAMES } from "../../formats/names.js";
 import type { RegisterCommand } from "../commands.js";
-import type { runFormats } from "../formats.js";
+import { lazyAction } from "./define.js";
 
 /** `headroom formats`: a table of the number formats and their limits (or JSON). */
 export const register: RegisterCommand = (program) => {
@@ -9,8 +9,5 @@ export const register: RegisterCommand = (program) => {
     .description("Print the number formats headroom knows and their limits: largest finite, overflow threshold, smallest normal and subnormal, epsilon, range")
     .argument("[names...]", `formats to show (default all): ${FORMAT_NAMES.join(", ")}`)
     .option("--json", "print a JSON array of the formats, every number exact (infinity as null)")
-    .action(async (...args: Parameters<typeof runFormats>) => {
-      const { runFormats } = await import("../formats.js");
-      await runFormats(...args);
-    });
+    .action(lazyAction(() => import("../formats.js").then((m) => m.runFormats)));
 };

@@ -3,7 +3,7 @@ import { OVERFLOW_MODES } from "../../formats/model.js";
 import { FORMAT_NAMES } from "../../formats/names.js";
 import { ROUNDING_MODES } from "../../formats/round.js";
 import type { RegisterCommand } from "../commands.js";
-import type { runRound } from "../round.js";
+import { lazyAction } from "./define.js";
 
 /** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
 export const register: RegisterCommand = (program) => {
@@ -25,8 +25,5 @@ export const register: RegisterCommand = (program) => {
     .option("--json", "one JSON object per line (per value and format); infinities and NaN as strings")
     // values such as -inf and -nan look like options to the parser; unknown options arrive as values and are named below
     .allowUnknownOption()
-    .action(async (...args: Parameters<typeof runRound>) => {
-      const { runRound } = await import("../round.js");
-      await runRound(...args);
-    });
+    .action(lazyAction(() => import("../round.js").then((m) => m.runRound)));
 };

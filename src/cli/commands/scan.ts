@@ -2,7 +2,7 @@ import { Option } from "commander";
 import { OVERFLOW_MODES } from "../../formats/model.js";
 import { DEFAULT_SCAN_TARGETS } from "../../measure/cast.js";
 import type { RegisterCommand } from "../commands.js";
-import type { runScan } from "../scan.js";
+import { lazyAction } from "./define.js";
 
 /** `headroom scan FILE...`: measure the tensors of safetensors and .npy files and judge casting them into formats. */
 export const register: RegisterCommand = (program) => {
@@ -29,8 +29,5 @@ export const register: RegisterCommand = (program) => {
       "\nExit code: 0 when every tensor is safe in every target, 1 when some cast would lose values or break, " +
         "2 when a file could not be read (the strictest applies).",
     )
-    .action(async (...args: Parameters<typeof runScan>) => {
-      const { runScan } = await import("../scan.js");
-      await runScan(...args);
-    });
+    .action(lazyAction(() => import("../scan.js").then((m) => m.runScan)));
 };

@@ -1,20 +1,18 @@
 import type { RegisterCommand } from "../commands.js";
-import type { runSimulate } from "../simulate.js";
+import { lazyAction, planOption, specCommand } from "./define.js";
 
 /** `headroom simulate SPEC`: run the network in float64 with planned storage rounding and compare with the prediction. */
 export const register: RegisterCommand = (program) => {
-  program
-    .command("simulate")
+  specCommand(program, "simulate")
     .description(
       "Run the described network forward and backward on random data in float64, rounding every stored tensor to its " +
         "planned format, and put the measured magnitudes beside the predicted ones",
     )
-    .argument("<spec>", "network spec (YAML or JSON)")
     .option("--steps <n>", "optimizer steps to run after the first measurement, to see the first steps' drift", "0")
     .option("--seed <n>", "seed of the first draw (draw i uses seed + i)", "1")
     .option("--draws <n>", "independent draws of weights and data; the median is reported", "1")
     .option("--shrink <factors>", "shrink for speed: one factor for widths, batch and positions (e.g. 4), or width=4,batch=8,positions=2,classes=2,image=2")
-    .option("--plan <name>", "store tensors in this plan of the spec's `plans` instead of its `precision`")
+    .addOption(planOption("store tensors in"))
     .option("--loss-scale <scale>", "static loss scale, a power of two (default: the plan's, else 1)")
     .option("--no-rounding", "keep every tensor in binary64 (counts still say what storing would do)")
     .option("--memory <GiB>", "refuse runs that would need more memory than this", "4")
@@ -26,8 +24,5 @@ export const register: RegisterCommand = (program) => {
       "after",
       "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input.",
     )
-    .action(async (...args: Parameters<typeof runSimulate>) => {
-      const { runSimulate } = await import("../simulate.js");
-      await runSimulate(...args);
-    });
+    .action(lazyAction(() => import("../simulate.js").then((m) => m.runSimulate)));
 };
