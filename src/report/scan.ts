@@ -33,7 +33,8 @@ export function scalesText(cast: CastResult): string {
   const s = cast.scales;
   if (!s) return "";
   if (s.fits) return `${powerText(s.lowest)} … ${powerText(s.highest)}`;
-  return `none; at ${powerText(s.highest)} ${formatCount(s.belowSubnormalAtHighest)} fall below the smallest subnormal`;
+  const n = s.belowSubnormalAtHighest;
+  return `none; at ${powerText(s.highest)}, ${formatCount(n)} value${n === 1 ? " falls" : "s fall"} below the smallest subnormal`;
 }
 
 /** The verdict of one cast with its leading count, e.g. "breaks: 12 overflow". */
@@ -70,7 +71,7 @@ export function renderScanTable(result: ScanResult, options: ScanRenderOptions =
     .map((t) => `${t.format} (${t.overflow === "saturate" ? "saturating" : "overflow to infinity"}${t.flushSubnormals ? ", subnormals flushed" : ""})`)
     .join(", ");
   let out = "";
-  out += `scanned ${formatCount(result.files.length)} file${result.files.length === 1 ? "" : "s"}: ${formatCount(measured.length)} tensors measured`;
+  out += `scanned ${formatCount(result.files.length)} file${result.files.length === 1 ? "" : "s"}: ${formatCount(measured.length)} tensor${measured.length === 1 ? "" : "s"} measured`;
   if (skipped > 0) out += `, ${formatCount(skipped)} skipped (not floating point)`;
   if (withErrors > 0) out += `, ${style.role("error", `${withErrors} with errors`)}`;
   out += "\n";

@@ -20,7 +20,21 @@ const risky = files.write(
 );
 const gains = files.write("gains.npy", npyBytes(1, "<f4", [4], encode("F32", [1, 1, 1, 1])));
 
+// 6e4 fits binary16 only unscaled (2^1·6e4 passes 65504); 1e-12 and 3e-12 lie below half its smallest subnormal
+// 2^-24 even then (IEEE 754-2019 §3.3): no scale keeps every value
+const wide = files.write("wide.npy", npyBytes(1, "<f4", [3], encode("F32", [6e4, 1e-12, 3e-12])));
+const wideOne = files.write("wide-one.npy", npyBytes(1, "<f4", [2], encode("F32", [6e4, 1e-12])));
+
 describe("headroom scan", () => {
+  it("words a range no scale fits: the highest safe scale and how many values it still flushes", () => {
+    const run = runCli(["scan", wide, "--to", "binary16"]);
+    expect(run.status).toBe(1);
+    expect(run.stdout).toMatch(/scanned 1 file: 1 tensor measured/);
+    expect(run.stdout).toContain("none; at 2^0, 2 values fall below the smallest subnormal");
+    const one = runCli(["scan", wideOne, "--to", "binary16"]);
+    expect(one.stdout).toContain("none; at 2^0, 1 value falls below the smallest subnormal");
+  });
+
   it("exit 0 when every tensor is safe; the table says so", () => {
     const run = runCli(["scan", safe, gains]);
     expect(run.stderr).toBe("");
