@@ -144,8 +144,6 @@ export interface HazardSite {
   output?: MagnitudeProfile;
   /** the same site at the end of the training horizon */
   end?: { input: MagnitudeProfile; output?: MagnitudeProfile };
-  /** the weight gradients a network-wide count sums over (Adam's epsilon, from the training setup), when it has one */
-  gradients?: TensorPrediction[];
 }
 
 /** The magnitude engine's output for one spec and plan. */

@@ -3,14 +3,14 @@
  * is judged against the formats of the plan entries that hold its result.
  */
 import type { FormatName } from "../formats/names.js";
-import type { HazardSite, MagnitudeProfile } from "../magnitude/types.js";
+import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
+import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentSides, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { percent, plainNumber, scaleWords } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -27,6 +27,12 @@ export interface HazardContext {
   workerGradients: "sum" | "average";
   workers: number;
   thresholds: RiskThresholds;
+  /**
+   * the network's weight gradients (the prediction's, as weightGradientsOf gives them): Adam's epsilon site of the
+   * training setup counts zero second moments over all of them, at the start and at the end of the horizon; without
+   * them it is judged at its own gradient, as a site of the prediction is
+   */
+  weightGradients?: readonly TensorPrediction[];
 }
 
 type HeldIn = HazardEvaluation["heldIn"];
@@ -166,11 +172,16 @@ export function evaluateHazard(
   const end = END;
   start.count = 0;
   end.count = 0;
-  draftsFor(site, site.input, site.output, context, start);
+  // the training setup's epsilon site has no profile of its own at the end: its count sums over the network's
+  // weight gradients at each side of the horizon
+  const network = site.kind === "optimizer-constant" && origin === "training setup" && context.weightGradients !== undefined;
+  draftsFor(site, site.input, site.output, context, start, network ? "start" : null);
   const siteEnd = site.end;
-  const ended = siteEnd !== undefined;
+  const ended = siteEnd !== undefined || network;
   if (siteEnd !== undefined) {
-    draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end);
+    draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end, null);
+  } else if (network) {
+    draftsFor(site, site.input, site.output, context, end, "end");
   }
   const evaluations: HazardEvaluation[] = [];
   const findings: Finding[] = [];
@@ -235,7 +246,15 @@ export function hazardVerdict(check: HazardCheck): Verdict {
   return worstVerdict(check.findings);
 }
 
-function draftsFor(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
+// `networkSide`: the side of the horizon at which a network-wide count is taken (null: the site is judged at `input`)
+function draftsFor(
+  site: HazardSite,
+  input: MagnitudeProfile,
+  output: MagnitudeProfile | undefined,
+  context: HazardContext,
+  list: DraftList,
+  networkSide: "start" | "end" | null,
+): void {
   switch (site.kind) {
     case "softmax-exp":
       return softmaxExp(site, input, context, list);
@@ -248,7 +267,7 @@ function draftsFor(site: HazardSite, input: MagnitudeProfile, output: MagnitudeP
     case "gradient-sum":
       return gradientSum(site, input, output, context, list);
     case "optimizer-constant":
-      return optimizerConstant(site, input, context, list, list === END ? "end" : "start");
+      return optimizerConstant(site, input, context, list, networkSide);
     case "optimizer-second-moment":
       return secondMoment(input, context, list);
   }
@@ -470,9 +489,9 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
 // is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero.
-// A site of the training setup carries the network's weight gradients: the count sums over all of them at the side
-// judged (src/risk/second-moments.ts); a site of the prediction is judged at its own gradient.
-function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList, side: "start" | "end"): void {
+// The training setup's site sums the count over the context's weight gradients at the side judged (once per check:
+// src/risk/second-moments.ts remembers it for the optimizer check); a site of the prediction is judged at its gradient.
+function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList, side: "start" | "end" | null): void {
   const limits = context.optimizerStates;
   const epsilon = site.constant;
   if (epsilon === undefined) return;
@@ -483,7 +502,9 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
     fill(nextDraft(list), limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", 0, limits.flushBound,
       "fits", 0, EPSILON_KEPT, epsilon, false);
   } else {
-    const network = site.gradients === undefined ? undefined : networkZeroSecondMomentsAt(site.gradients, side, limits.flushBound, context.beta2);
+    const weightGradients = context.weightGradients;
+    const network =
+      side === null || weightGradients === undefined ? undefined : networkZeroSecondMomentSides(weightGradients, limits.flushBound, context.beta2)[side];
     const zeros = network === undefined ? zeroSecondMoments(gradient, limits.flushBound, context.beta2) : network.perStep;
     const draft = nextDraft(list);
     fill(draft, limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,

@@ -264,13 +264,14 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const lossScale = scales[0] as AppliedLossScale;
   const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
   const training = trainingSites(spec, prediction);
-  const contexts = hazardContexts(spec, settings, thresholds);
+  const weightGradients = weightGradientsOf(prediction);
+  const contexts = hazardContexts(spec, settings, thresholds, weightGradients);
   const hazards: HazardCheck[] = [];
   for (let i = 0; i < prediction.hazards.length; i++) {
-    hazards.push(judgeSite(prediction.hazards[i] as HazardSite, "prediction", settings, contexts, spec, lossScale.value, thresholds));
+    hazards.push(judgeSite(prediction.hazards[i] as HazardSite, "prediction", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
   }
   for (let i = 0; i < training.length; i++) {
-    hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds));
+    hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
   }
   const formatChecks: FormatCheck[] = [];
   let verdict: Verdict = "fits";
@@ -428,11 +429,20 @@ function judgeTensor(
 }
 
 // per setting, the hazard context of its plan (settings judged under the same plan share one)
-function hazardContexts(spec: NetworkSpec, settings: readonly FormatSetting[], thresholds: RiskThresholds): HazardContext[] {
+function hazardContexts(
+  spec: NetworkSpec,
+  settings: readonly FormatSetting[],
+  thresholds: RiskThresholds,
+  weightGradients: readonly TensorPrediction[],
+): HazardContext[] {
   const contexts: HazardContext[] = [];
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
-    contexts.push(setting.contextIndex === i ? hazardContext(spec, setting.evaluated, setting.lossScale, thresholds) : (contexts[setting.contextIndex] as HazardContext));
+    contexts.push(
+      setting.contextIndex === i
+        ? hazardContext(spec, setting.evaluated, setting.lossScale, thresholds, weightGradients)
+        : (contexts[setting.contextIndex] as HazardContext),
+    );
   }
   return contexts;
 }
@@ -449,13 +459,14 @@ function judgeSite(
   spec: NetworkSpec,
   lossScale: number,
   thresholds: RiskThresholds,
+  weightGradients: readonly TensorPrediction[],
 ): HazardCheck {
   const perFormat: HazardCheck[] = [];
   for (let i = 0; i < settings.length; i++) {
     const shared = (settings[i] as FormatSetting).contextIndex;
     perFormat.push(shared === i ? evaluateHazard(site, contexts[i] as HazardContext, origin) : (perFormat[shared] as HazardCheck));
   }
-  const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, spec.precision, lossScale, thresholds), origin);
+  const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, spec.precision, lossScale, thresholds, weightGradients), origin);
   // gathered in SITE_EVALUATIONS and SITE_FINDINGS and copied out at their exact length, as a tensor's risks are
   let evaluationCount = 0;
   let findingCount = 0;
@@ -541,7 +552,13 @@ function withLedger(check: TensorCheck, ledger: LedgerEntry[] | undefined): Tens
   return { ...head, ledger, statistics, risks, verdict };
 }
 
-function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number, thresholds: RiskThresholds): HazardContext {
+function hazardContext(
+  spec: NetworkSpec,
+  plan: PrecisionPlan,
+  lossScale: number,
+  thresholds: RiskThresholds,
+  weightGradients: readonly TensorPrediction[],
+): HazardContext {
   return {
     activations: limitsFor(plan, plan.activations),
     gradients: limitsFor(plan, plan.gradients),
@@ -552,6 +569,7 @@ function hazardContext(spec: NetworkSpec, plan: PrecisionPlan, lossScale: number
     workerGradients: spec.training.workerGradients,
     workers: spec.training.workers,
     thresholds,
+    weightGradients,
   };
 }
 
@@ -629,9 +647,9 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         constant: optimizer.epsilon,
         detail: `${optimizer.kind} epsilon ${plainNumber(optimizer.epsilon)} in the optimizer-state format`,
         output: undefined,
-        // judged at the start and the end: its count sums over every weight gradient at one side of the horizon
-        end: { input },
-        gradients: weightGradients,
+        // judged at the start and the end of the horizon all the same: its count sums over the context's weight
+        // gradients at each side (src/risk/hazards.ts)
+        end: undefined,
       });
     }
     if (!hasSite(prediction.hazards, "optimizer-second-moment")) {

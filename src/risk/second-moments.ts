@@ -100,8 +100,11 @@ export function byRms(tensors: readonly TensorPrediction[], pick: "largest" | "s
 export interface NetworkZeroSecondMoments {
   perStep: number;
   at: "start" | "end";
-  /** the id of the weight gradient contributing most, and its count ("" and 0 without weight gradients) */
+  /** the id of the weight gradient contributing most, its layer, its profile at this side and its count ("", "",
+   * undefined and 0 without weight gradients or zero second moments) */
   top: string;
+  topLayer: string;
+  topProfile: MagnitudeProfile | undefined;
   topCount: number;
 }
 
@@ -117,33 +120,74 @@ export function networkZeroSecondMomentsAt(
   beta2: number,
 ): NetworkZeroSecondMoments {
   let perStep = 0;
-  let top = "";
+  let top: TensorPrediction | undefined;
   let topCount = 0;
   for (let i = 0; i < weightGradients.length; i++) {
     const tensor = weightGradients[i] as TensorPrediction;
     const count = zeroSecondMoments(at === "start" ? tensor.start : tensor.end, flushBound, beta2);
     perStep += count;
     if (count > topCount) {
-      top = tensor.id;
+      top = tensor;
       topCount = count;
     }
   }
-  return { perStep, at, top, topCount };
+  return top === undefined
+    ? { perStep, at, top: "", topLayer: "", topProfile: undefined, topCount }
+    : { perStep, at, top: top.id, topLayer: top.layer, topProfile: at === "start" ? top.start : top.end, topCount };
+}
+
+/** The network-wide counts at both sides of the horizon. */
+export interface NetworkZeroSecondMomentSides {
+  start: NetworkZeroSecondMoments;
+  end: NetworkZeroSecondMoments;
+}
+
+// Per list of weight gradients (weightGradientsOf gives one list per prediction), per flush bound and β2: the
+// epsilon hazard and the optimizer check of one check ask for the same counts, which are worked out once. A
+// prediction is data that is not changed once made (a prediction adjusted by a caller is a new object).
+const SIDES = new WeakMap<readonly TensorPrediction[], Map<string, NetworkZeroSecondMomentSides>>();
+
+/** {@link networkZeroSecondMomentsAt} at the start and at the end, remembered for the list, flush bound and β2. */
+export function networkZeroSecondMomentSides(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMomentSides {
+  let known = SIDES.get(weightGradients);
+  if (known === undefined) {
+    known = new Map();
+    SIDES.set(weightGradients, known);
+  }
+  // a double's shortest decimal form names it exactly (ECMA-262 Number::toString)
+  const key = `${flushBound} ${beta2}`;
+  let sides = known.get(key);
+  if (sides === undefined) {
+    sides = {
+      start: networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2),
+      end: networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2),
+    };
+    known.set(key, sides);
+  }
+  return sides;
 }
 
 /** The worse (larger) of the start and end network-wide counts; the start on a tie, as a hazard's start/end choice. */
 export function networkZeroSecondMoments(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMoments {
-  const start = networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2);
-  const end = networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2);
+  const { start, end } = networkZeroSecondMomentSides(weightGradients, flushBound, beta2);
   return end.perStep > start.perStep ? end : start;
 }
 
-/** The weight gradients of a prediction, in its order. */
-export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
-  const out: TensorPrediction[] = [];
-  for (let i = 0; i < prediction.tensors.length; i++) {
-    const tensor = prediction.tensors[i] as TensorPrediction;
-    if (tensor.role === "weight-gradient") out.push(tensor);
+// one list per prediction's tensors, so that the counts above are shared by every caller judging that prediction
+const WEIGHT_GRADIENTS = new WeakMap<readonly TensorPrediction[], readonly TensorPrediction[]>();
+
+/** The weight gradients of a prediction, in its order: one list per prediction (not to be changed). */
+export function weightGradientsOf(prediction: Prediction): readonly TensorPrediction[] {
+  const tensors = prediction.tensors;
+  let out = WEIGHT_GRADIENTS.get(tensors);
+  if (out === undefined) {
+    const list: TensorPrediction[] = [];
+    for (let i = 0; i < tensors.length; i++) {
+      const tensor = tensors[i] as TensorPrediction;
+      if (tensor.role === "weight-gradient") list.push(tensor);
+    }
+    out = list;
+    WEIGHT_GRADIENTS.set(tensors, out);
   }
   return out;
 }

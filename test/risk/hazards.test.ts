@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
+import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, type HazardContext } from "../../src/risk/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
 
@@ -191,6 +191,59 @@ describe("optimizer constants", () => {
     { at: "bfloat16 flushing subnormals, 2^-126 − 2^-133 (its largest subnormal)", epsilon: 2 ** -126 - 2 ** -133, states: BFLOAT16_FTZ, expected: false },
   ])("ε at $at: kept $expected, as rounding decides", ({ epsilon, states, expected }) => {
     expect(kept(epsilonAt(epsilon, states))).toBe(expected);
+  });
+});
+
+describe("Adam's epsilon of the training setup, counted over the context's weight gradients", () => {
+  // (1 − β2)·g² flushes in binary16 (flush bound 2^-25: half its smallest subnormal 2^-24, IEEE 754-2019 Table 3.5)
+  // for |g| ≤ √(2^-25/(1 − 0.999)) (DESIGN.md §5 item 5); a Gaussian gradient of rms σ has 2Φ(bound/σ) − 1 of its
+  // elements below that. Φ by Abramowitz & Stegun 26.2.17 (|error| < 7.5e-8), independent of the engine's normal.
+  const normalCdf = (x: number): number => {
+    const t = 1 / (1 + 0.2316419 * x);
+    const poly = t * (0.31938153 + t * (-0.356563782 + t * (1.781477937 + t * (-1.821255978 + t * 1.330274429))));
+    return 1 - (Math.exp((-x * x) / 2) / Math.sqrt(2 * Math.PI)) * poly;
+  };
+  const bound = Math.sqrt(2 ** -25 / 0.001);
+  const zeros = (elements: number, rms: number) => elements * (2 * normalCdf(bound / rms) - 1);
+  const gradient = (id: string, start: number, end: number): TensorPrediction => ({
+    id,
+    layer: id.split("/")[0] as string,
+    layerIndex: 0,
+    family: "dense",
+    role: "weight-gradient",
+    slot: "gradients",
+    shape: [100],
+    start: profile({ rms: start, elements: 100 }),
+    end: profile({ rms: end, elements: 100 }),
+    ledger: [],
+    source: "predicted",
+  });
+  // two layers of 100 elements: together below one zero second moment per step at the start (about 0.55 + 0.36),
+  // above one at the end (about 1.45 + 0.44)
+  const weightGradients = [gradient("a/weight-gradient", 0.8, 0.3), gradient("b/weight-gradient", 1.2, 1)];
+  const epsilonSite = site({ kind: "optimizer-constant", constant: 1e-8, input: weightGradients[1]!.start });
+  const states = context({ optimizerStates: BINARY16, weightGradients });
+
+  it("sums over every weight gradient at the worse side of the horizon, with no end of its own", () => {
+    const start = zeros(100, 0.8) + zeros(100, 1.2);
+    const end = zeros(100, 0.3) + zeros(100, 1);
+    expect(start).toBeLessThan(1);
+    expect(end).toBeGreaterThan(1);
+    const judged = evaluateHazard(epsilonSite, states, "training setup");
+    expect(judged.evaluations).toHaveLength(1);
+    const evaluation = judged.evaluations[0]!;
+    expect(evaluation.at).toBe("end");
+    // the engine integrates the Gaussian law numerically: held to 1e-4 relative
+    expect(Math.abs(evaluation.value / end - 1)).toBeLessThan(1e-4);
+    expect(judged.findings.map((f) => [f.kind, f.severity, f.at])).toEqual([["optimizer-epsilon-flushed", "fails", "end"]]);
+  });
+
+  it("judges a site of the prediction at its own gradient, whatever weight gradients the context has", () => {
+    const judged = evaluateHazard(epsilonSite, states, "prediction");
+    const own = zeros(100, 1.2);
+    expect(own).toBeLessThan(1);
+    expect(Math.abs(judged.evaluations[0]!.value / own - 1)).toBeLessThan(1e-4);
+    expect(judged.findings.map((f) => [f.severity, f.at])).toEqual([["at-risk", undefined]]);
   });
 });
 

@@ -13,6 +13,7 @@ import {
   type LossScaleWindowSummary,
 } from "../../src/risk/index.js";
 import { trainingSites } from "../../src/risk/judge.js";
+import { weightGradientsOf } from "../../src/risk/second-moments.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
@@ -127,6 +128,11 @@ describe("judgePrediction", () => {
     const measures = (kind: string) => result.hazards.find((h) => h.kind === kind)?.evaluations.map((e) => e.measure);
     expect(new Set(measures("optimizer-constant"))).toEqual(new Set(["zero-second-moments"]));
     expect(new Set(measures("optimizer-second-moment"))).toEqual(new Set(["flushed-share"]));
+    // the epsilon site is a plain site: its count's weight gradients come with the judge's context, not on the site
+    const epsilon = trainingSites(spec(), PREDICTION).find((s) => s.kind === "optimizer-constant");
+    expect(epsilon?.end).toBeUndefined();
+    expect(Object.keys(epsilon ?? {})).not.toContain("gradients");
+    expect(result.hazards.find((h) => h.kind === "optimizer-constant")?.evaluations.map((e) => e.at)).toEqual(["start"]);
   });
 
   it("is plain JSON-able data and carries the caution", () => {
@@ -140,7 +146,7 @@ describe("judgePrediction", () => {
     const s = spec();
     const result = judgePrediction(s, PREDICTION, { formats: ["binary16", "binary32", "bfloat16"], lossScale: 8 });
     // the sites judged, in the result's order: the prediction's, then the training setup's (whose epsilon site
-    // carries the weight gradients its count sums over, which the result does not repeat)
+    // counts over the weight gradients of the context)
     const sites = [...PREDICTION.hazards, ...trainingSites(s, PREDICTION)];
     expect(sites).toHaveLength(result.hazards.length);
     for (let i = 0; i < result.hazards.length; i++) {
@@ -161,6 +167,7 @@ describe("judgePrediction", () => {
             workerGradients: s.training.workerGradients,
             workers: s.training.workers,
             thresholds: DEFAULT_THRESHOLDS,
+            weightGradients: weightGradientsOf(PREDICTION),
           },
           hazard.origin,
         );

@@ -1,6 +1,7 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { networkZeroSecondMoments, networkZeroSecondMomentsAt } from "../../src/risk/second-moments.js";
+import type { Prediction } from "../../src/magnitude/types.js";
+import { networkZeroSecondMomentSides, networkZeroSecondMoments, networkZeroSecondMomentsAt, weightGradientsOf } from "../../src/risk/second-moments.js";
 
 // Φ(x) by Abramowitz & Stegun 26.2.17 (|error| < 7.5e-8), independent of the engine's own normal functions
 function normalCdf(x: number): number {
@@ -51,7 +52,29 @@ describe("zero second moments per step, summed over every weight gradient", () =
     expect(worse.top).toBe(start > end ? "b/weight-gradient" : "a/weight-gradient");
   });
 
+  it("is worked out once per prediction, flush bound and β2, and shared by everyone who asks (hazard and optimizer check)", () => {
+    const a = gradient("a/weight-gradient", gaussian(1000, 2), gaussian(1000, 0.5));
+    const b = gradient("b/weight-gradient", gaussian(1000, 0.4), gaussian(1000, 4));
+    const activation: TensorPrediction = { ...a, id: "a/output", role: "activation", slot: "activations" };
+    const prediction: Prediction = { specName: "two layers", tensors: [activation, a, b], hazards: [], assumptions: [] };
+    const list = weightGradientsOf(prediction);
+    expect(list).toEqual([a, b]);
+    // the same list for the same prediction (and for a copy sharing its tensors), so the counts below are shared
+    expect(weightGradientsOf(prediction)).toBe(list);
+    expect(weightGradientsOf({ ...prediction, assumptions: ["another"] })).toBe(list);
+    const sides = networkZeroSecondMomentSides(list, flushBound, beta2);
+    expect(networkZeroSecondMomentSides(list, flushBound, beta2)).toBe(sides);
+    expect(sides.start).toEqual(networkZeroSecondMomentsAt([a, b], "start", flushBound, beta2));
+    expect(sides.end).toEqual(networkZeroSecondMomentsAt([a, b], "end", flushBound, beta2));
+    expect([sides.start, sides.end]).toContain(networkZeroSecondMoments(list, flushBound, beta2));
+    // another flush bound or β2 is another count
+    const other = networkZeroSecondMomentSides(list, 2 ** -24, beta2);
+    expect(other).not.toBe(sides);
+    expect(other.start.perStep).toBeGreaterThan(sides.start.perStep);
+    expect(networkZeroSecondMomentSides(list, flushBound, 0.99)).not.toBe(sides);
+  });
+
   it("is 0 with no weight gradients", () => {
-    expect(networkZeroSecondMoments([], flushBound, beta2)).toEqual({ perStep: 0, at: "start", top: "", topCount: 0 });
+    expect(networkZeroSecondMoments([], flushBound, beta2)).toEqual({ perStep: 0, at: "start", top: "", topLayer: "", topProfile: undefined, topCount: 0 });
   });
 });
