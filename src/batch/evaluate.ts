@@ -5,7 +5,7 @@
  */
 import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import type { RowError, SpecSummary } from "./types.js";
-import { varyText, VaryError, type Variant } from "./vary.js";
+import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
 
 /** What a worker is asked to evaluate. */
 export interface SpecTask {
@@ -24,14 +24,20 @@ export interface EvaluateHooks {
   readText(file: string): Promise<string> | string;
   /** the spec's JSON Schema (or a function giving it, called only when a task has a variant), so --vary can add keys the file leaves to their defaults */
   schema?: Record<string, unknown> | (() => Record<string, unknown>);
-  /** judge a valid spec */
-  judge(spec: NetworkSpec): Promise<SpecSummary> | SpecSummary;
+  /** judge a valid spec; `locate` gives positions in the user's file (lines a variant added mapped back) */
+  judge(spec: NetworkSpec, locate: (path: SpecPath) => SpecPosition): Promise<SpecSummary> | SpecSummary;
+}
+
+/** How {@link evaluateText} gets its pieces: those of a task but the reading, and optionally how variants apply. */
+export interface TextHooks extends Omit<EvaluateHooks, "readText"> {
+  /** the variant applied to the text (default: varyText with `schema`); `textVarier` parses the text once for many variants */
+  vary?: (variant: Variant) => VariedText;
 }
 
 /** Files larger than this are refused before reading (the spec loader's limit). */
 const MAX_SPEC_BYTES = 10 * 1024 * 1024;
 
-function inputError(message: string, position?: RowError["position"]): TaskResult {
+function inputError(message: string, position?: RowError["position"]): { status: "error"; error: RowError } {
   return { status: "error", error: position ? { kind: "input", message, position } : { kind: "input", message } };
 }
 
@@ -47,7 +53,7 @@ export function issuesError(issues: readonly SpecIssue[], originalLine: (line: n
     : { kind: "input", message, position: { file: first.file } };
 }
 
-function readError(file: string, error: unknown): TaskResult {
+function readError(file: string, error: unknown): { status: "error"; error: RowError } {
   const code = (error as { code?: unknown } | null)?.code;
   const words: Record<string, string> = {
     ENOENT: "no such file",
@@ -83,42 +89,62 @@ function positionedIssues(error: unknown, locate: (path: SpecPath) => SpecPositi
  * a failure inside the judge gives an internal error. Never throws.
  */
 export async function evaluateTask(task: SpecTask, hooks: EvaluateHooks): Promise<TaskResult> {
-  if (!/\.(ya?ml|json)$/i.test(task.file)) {
-    return inputError(`${task.file}: a spec is a .yaml, .yml or .json file`, { file: task.file });
+  const read = await readSpecText(task.file, hooks.readText);
+  return typeof read === "string" ? evaluateText(task.file, read, task.variant, hooks) : read;
+}
+
+/**
+ * The text of a spec file (without a byte-order mark), or the input error that stops it: not a spec's extension,
+ * unreadable, or above the size limit. Never throws for those.
+ */
+export async function readSpecText(file: string, readText: EvaluateHooks["readText"]): Promise<string | { status: "error"; error: RowError }> {
+  if (!/\.(ya?ml|json)$/i.test(file)) {
+    return inputError(`${file}: a spec is a .yaml, .yml or .json file`, { file });
   }
   let text: string;
   try {
-    text = await hooks.readText(task.file);
+    text = await readText(file);
   } catch (error) {
-    return readError(task.file, error);
+    return readError(file, error);
   }
   if (text.length > MAX_SPEC_BYTES) {
-    return inputError(`${task.file}: the file is above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`, { file: task.file });
+    return inputError(`${file}: the file is above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`, { file });
   }
-  if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
+  return text.charCodeAt(0) === 0xfeff ? text.slice(1) : text;
+}
+
+/**
+ * Evaluate a spec file's text (from {@link readSpecText}) with a variant applied in memory: `check --vary` reads
+ * the file once and evaluates each variant from its text. Never throws.
+ */
+export async function evaluateText(file: string, original: string, variant: Variant | null, hooks: TextHooks): Promise<TaskResult> {
+  let text = original;
   let originalLine = (line: number): number => line;
-  if (task.variant) {
+  if (variant) {
     try {
-      const schema = typeof hooks.schema === "function" ? hooks.schema() : hooks.schema;
-      const varied = varyText(text, task.variant, schema);
+      const varied = hooks.vary ? hooks.vary(variant) : varyText(text, variant, typeof hooks.schema === "function" ? hooks.schema() : hooks.schema);
       text = varied.text;
       originalLine = varied.originalLine;
     } catch (error) {
-      if (error instanceof VaryError) return inputError(`${task.file}: ${error.message}`, { file: task.file });
+      if (error instanceof VaryError) return inputError(`${file}: ${error.message}`, { file });
       throw error;
     }
   }
-  const parsed = parseSpec(text, task.file);
+  const parsed = parseSpec(text, file);
   if (!parsed.ok) return { status: "error", error: issuesError(parsed.issues, originalLine) };
+  const locate = (path: SpecPath): SpecPosition => {
+    const at = parsed.locate(path);
+    return at.line > 0 ? { ...at, line: originalLine(at.line) } : at;
+  };
   try {
-    return { status: "ok", summary: await hooks.judge(parsed.spec) };
+    return { status: "ok", summary: await hooks.judge(parsed.spec, locate) };
   } catch (error) {
-    const located = positionedIssues(error, parsed.locate, task.file);
-    if (located) return { status: "error", error: issuesError(located, originalLine) };
+    const located = positionedIssues(error, locate, file);
+    if (located) return { status: "error", error: issuesError(located) };
     const message = error instanceof Error ? error.message : String(error);
     // library functions throw RangeError for values the spec allowed but the model cannot take;
     // anything else is a failure of headroom itself
     const kind = error instanceof RangeError ? "input" : "internal";
-    return { status: "error", error: { kind, message: `${task.file}: ${message}` } };
+    return { status: "error", error: { kind, message: `${file}: ${message}` } };
   }
 }

@@ -208,23 +208,39 @@ export interface VariedText {
  * is returned unchanged: the spec loader reports its errors with their positions.
  */
 export function varyText(text: string, variant: Variant, schema?: Schema): VariedText {
-  let current = text;
-  // line maps from each edit, applied newest first to go back to the original
-  const maps: ((line: number) => number)[] = [];
-  for (const setting of variant.settings) {
+  return textVarier(text, schema)(variant);
+}
+
+/**
+ * {@link varyText} for many variants of one text (`check --vary`): the text's YAML document is parsed once, on the
+ * first variant, and each variant's first setting is found in it; further settings of a variant edit the text that
+ * the ones before made, so they parse that.
+ */
+export function textVarier(text: string, schema?: Schema): (variant: Variant) => VariedText {
+  let original: { doc: ReturnType<ReturnType<typeof yamlLib>["parseDocument"]>; counter: LineCounter } | undefined;
+  const parse = (current: string) => {
     const yaml = yamlLib();
     const counter = new yaml.LineCounter();
-    const doc = yaml.parseDocument(current, { lineCounter: counter, merge: true, uniqueKeys: true });
-    if (doc.errors.length > 0) break;
-    const edit = editFor(doc.contents, current, counter, setting.key, setting.path, setting.value, schema);
-    const editLine = counter.linePos(edit.start).line;
-    const added = countNewlines(edit.text) - countNewlines(current.slice(edit.start, edit.end));
-    current = current.slice(0, edit.start) + edit.text + current.slice(edit.end);
-    if (added !== 0) {
-      maps.push((line) => (line <= editLine ? line : line <= editLine + added ? editLine : line - added));
+    return { doc: yaml.parseDocument(current, { lineCounter: counter, merge: true, uniqueKeys: true }), counter };
+  };
+  return (variant) => {
+    let current = text;
+    // line maps from each edit, applied newest first to go back to the original
+    const maps: ((line: number) => number)[] = [];
+    for (const setting of variant.settings) {
+      // editFor only reads the document, so the original's serves every variant
+      const { doc, counter } = current === text ? (original ??= parse(text)) : parse(current);
+      if (doc.errors.length > 0) break;
+      const edit = editFor(doc.contents, current, counter, setting.key, setting.path, setting.value, schema);
+      const editLine = counter.linePos(edit.start).line;
+      const added = countNewlines(edit.text) - countNewlines(current.slice(edit.start, edit.end));
+      current = current.slice(0, edit.start) + edit.text + current.slice(edit.end);
+      if (added !== 0) {
+        maps.push((line) => (line <= editLine ? line : line <= editLine + added ? editLine : line - added));
+      }
     }
-  }
-  return { text: current, originalLine: (line) => maps.reduceRight((l, map) => map(l), line) };
+    return { text: current, originalLine: (line) => maps.reduceRight((l, map) => map(l), line) };
+  };
 }
 
 function countNewlines(text: string): number {

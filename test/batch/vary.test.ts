@@ -1,6 +1,7 @@
-import { describe, expect, test } from "vitest";
+import { describe, expect, test, vi } from "vitest";
 import { parse } from "yaml";
-import { parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, varyText, VaryError, yamlScalarText } from "../../src/batch/vary.js";
+import { parseKeyPath, parseVaryOption, schemaHasPath, textVarier, variantsOf, varyText, VaryError, yamlScalarText } from "../../src/batch/vary.js";
+import { yamlLib } from "../../src/spec/yaml-lib.js";
 
 describe("parseKeyPath", () => {
   test.each([
@@ -170,5 +171,31 @@ describe("varyText", () => {
   test("leaves text that is not YAML alone, for the loader to report", () => {
     const [variant] = variantsOf([parseVaryOption("training.batch=2")]);
     expect(varyText("a: [\n", variant!, SCHEMA).text).toBe("a: [\n");
+  });
+});
+
+describe("textVarier", () => {
+  test("gives varyText's texts and line maps, parsing the file's document once for the first key of every variant", () => {
+    const yaml = yamlLib();
+    const parseDocument = vi.spyOn(yaml, "parseDocument");
+    try {
+      const variants = variantsOf(["training.batch=8,16,64", "training.workers=2,4"].map(parseVaryOption));
+      const expected = variants.map((v) => varyText(SPEC, v, SCHEMA));
+      parseDocument.mockClear();
+      const vary = textVarier(SPEC, SCHEMA);
+      const got = variants.map(vary);
+      expect(got.map((v) => v.text)).toEqual(expected.map((v) => v.text));
+      for (let i = 0; i < got.length; i++) {
+        for (let line = 1; line <= 12; line++) expect(got[i]!.originalLine(line)).toBe(expected[i]!.originalLine(line));
+      }
+      // once for the file, then once per variant for the text its first key made (the second key edits that text)
+      expect(parseDocument).toHaveBeenCalledTimes(1 + variants.length);
+      parseDocument.mockClear();
+      const single = textVarier(SPEC, SCHEMA);
+      for (const v of variantsOf([parseVaryOption("training.batch=8,16,64")])) single(v);
+      expect(parseDocument).toHaveBeenCalledTimes(1);
+    } finally {
+      parseDocument.mockRestore();
+    }
   });
 });
