@@ -11,8 +11,8 @@ import { judgePrediction, planFor, planFormats, type CheckOptions, type CheckRes
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
-import { formatSpecPath, loadSpec, type SpecIssue } from "./spec/index.js";
-import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
+import { formatSpecPath, loadSpec, type SpecIssue, type SpecPosition } from "./spec/index.js";
+import type { NetworkSpec, PrecisionPlan, SpecPath } from "./spec/types.js";
 
 /** A spec whose tensor graph cannot be built; `issues` name the spec paths. */
 export class CheckInputError extends RangeError {
@@ -164,10 +164,22 @@ function measuredPrediction(graph: Graph, spec: NetworkSpec, measurements: Measu
 
 /**
  * Read what a spec's `measured` section names (weight files, a recorded-statistics file), for {@link check};
- * undefined when the spec has none. Problems come back as one-line messages in `problems`.
+ * undefined when the spec has none. Problems come back as one-line messages in `problems`. With a `cache`, specs
+ * with the same source and section (variants of one spec that leave the section alone) share one reading.
  */
-export async function loadSpecMeasurements(spec: NetworkSpec): Promise<Measurements | undefined> {
-  return spec.measured === undefined ? undefined : loadMeasurements(spec.measured, spec.source);
+export async function loadSpecMeasurements(spec: NetworkSpec, cache?: Map<string, Promise<Measurements>>): Promise<Measurements | undefined> {
+  const measured = spec.measured;
+  if (measured === undefined) return undefined;
+  if (cache === undefined) return loadMeasurements(measured, spec.source);
+  const key = JSON.stringify([spec.source, measured]);
+  let loading = cache.get(key);
+  if (loading === undefined) cache.set(key, (loading = loadMeasurements(measured, spec.source)));
+  return loading;
+}
+
+/** The problems of a spec's measured data as issues positioned at its `measured` section. */
+export function measuredIssues(measurements: Measurements | undefined, locate: (path: SpecPath) => SpecPosition): SpecIssue[] {
+  return (measurements?.problems ?? []).map((message) => ({ ...locate(["measured"]), path: "measured", message }));
 }
 
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
@@ -194,7 +206,7 @@ export async function checkFile(path: string, options: CheckAnswerOptions = {}):
   if (!loaded.ok) return { ok: false, issues: loaded.issues };
   const measurements = await loadSpecMeasurements(loaded.spec);
   // unreadable measured data leaves those profiles predicted; say so at the spec's `measured` key
-  const measuredWarnings = (measurements?.problems ?? []).map((message) => ({ ...loaded.locate(["measured"]), path: "measured", message }));
+  const measuredWarnings = measuredIssues(measurements, loaded.locate);
   try {
     return { ok: true, result: check(loaded.spec, options, measurements), warnings: [...loaded.warnings, ...measuredWarnings] };
   } catch (error) {

@@ -1,9 +1,10 @@
-import { check, CheckInputError, loadSpecMeasurements } from "../check.js";
+import { check, CheckInputError, loadSpecMeasurements, measuredIssues } from "../check.js";
 import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
+import { formatSpecIssue, type SpecIssue } from "../spec/index.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
@@ -45,8 +46,7 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   if (loaded === undefined) return undefined;
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const measurements = await loadSpecMeasurements(loaded.spec);
-  for (const problem of measurements?.problems ?? []) process.stderr.write(`headroom: ${problem}\n`);
-  if (measurements !== undefined && measurements.problems.length > 0) raiseExitCode(EXIT.inputError);
+  reportMeasuredIssues(measuredIssues(measurements, loaded.locate));
   try {
     return check(loaded.spec, options, measurements);
   } catch (error) {
@@ -57,6 +57,12 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
     if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
     throw error;
   }
+}
+
+/** Problems of a spec's measured data, positioned at its `measured` section: input errors (exit code 2), though the check still runs. */
+export function reportMeasuredIssues(issues: readonly SpecIssue[]): void {
+  for (const issue of issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+  if (issues.length > 0) raiseExitCode(EXIT.inputError);
 }
 
 /** The flags of `check` (src/cli/commands/check.ts). */
