@@ -1,16 +1,20 @@
 import { readFile } from "node:fs/promises";
-import { evaluateTask } from "../batch/evaluate.js";
-import { check, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import { evaluateText, readSpecText } from "../batch/evaluate.js";
+import { textVarier } from "../batch/vary.js";
+import { check, loadSpecMeasurements, measuredIssues, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import type { Measurements } from "../measure/index.js";
 import { summarizeCheck } from "../report/summary.js";
 import { specJsonSchema } from "../spec/index.js";
-import { judgeOptions, type JudgeFlags } from "./check.js";
+import { judgeOptions, reportMeasuredIssues, type JudgeFlags } from "./check.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 import { variantsFromOptions } from "./shared.js";
 
 /**
- * `check --vary`: check every variant of one spec. A variant whose spec is invalid (or whose key does
- * not exist) is reported on stderr with its position in the file and exit code 2; the others are
- * checked. Resolves to the checked variants in order.
+ * `check --vary`: check every variant of one spec. The file is read once and each variant applied to its text in
+ * memory. A variant whose spec is invalid (or whose key does not exist) is reported on stderr with its position in
+ * the file and exit code 2; the others are checked with the spec's measured data as a plain check would be, the data
+ * read once for all variants that share the `measured` section (its problems reported once, exit code 2). Resolves to
+ * the checked variants in order.
  */
 export async function checkVariants(
   path: string,
@@ -19,20 +23,31 @@ export async function checkVariants(
 ): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
   const checkOptions: CheckAnswerOptions = judgeOptions(flags);
+  const text = await readSpecText(path, (file) => readFile(file, "utf8"));
+  if (typeof text !== "string") {
+    // a file that cannot be read is no variant's problem: said once, as a plain check says it
+    process.stderr.write(`${text.error.message}\n`);
+    raiseExitCode(text.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
+    return [];
+  }
+  const vary = textVarier(text, specJsonSchema());
+  const measuredCache = new Map<string, Promise<Measurements>>();
+  const reported = new Set<Measurements>();
   const out: { variant: string; result: CheckAnswer }[] = [];
   for (const variant of variants) {
     let result: CheckAnswer | undefined;
-    const outcome = await evaluateTask(
-      { file: path, variant },
-      {
-        readText: (file) => readFile(file, "utf8"),
-        schema: () => specJsonSchema(),
-        judge: (spec) => {
-          result = check(spec, checkOptions);
-          return summarizeCheck(result);
-        },
+    const outcome = await evaluateText(path, text, variant, {
+      vary,
+      judge: async (spec, locate) => {
+        const measurements = await loadSpecMeasurements(spec, measuredCache);
+        if (measurements !== undefined && !reported.has(measurements)) {
+          reported.add(measurements);
+          reportMeasuredIssues(measuredIssues(measurements, locate));
+        }
+        result = check(spec, checkOptions, measurements);
+        return summarizeCheck(result);
       },
-    );
+    });
     if (outcome.status === "error" || result === undefined) {
       const message = outcome.status === "error" ? outcome.error.message : `${path}: not checked`;
       process.stderr.write(`${message} [${variant.name}]\n`);
