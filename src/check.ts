@@ -4,10 +4,10 @@
  */
 import { buildGraph, type Graph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
-import { FORMATS, isFormatName } from "./formats/index.js";
+import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
-import { judgePrediction, planFor, planFormats, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
@@ -36,9 +36,37 @@ export interface CheckAnswer extends CheckResult {
   lossScaleAnswer: LossScaleAnswer | null;
   /** the answers for further gradient formats, when the formats judged hold gradients in several that need a scale */
   moreLossScaleAnswers?: LossScaleAnswer[];
+  /**
+   * what the check says about the loss scale, one item per gradient format it speaks about: each judged format that
+   * holds gradients, in the order of `formats`, then any answer about gradients no judged format holds (a judged format
+   * holding none, such as binary32 for the states, is judged at the plan's scale); the plan's gradient format when
+   * neither gives one. Renderers word these; they do not work them out again.
+   */
+  lossScales: LossScaleItem[];
   /** the optimizer's states, epsilon and update swamping under the plan */
   optimizer: OptimizerCheck;
 }
+
+/** Why gradients held in a format take no loss scale (the rule of {@link needsLossScale}). */
+export interface UnscaledReason {
+  /**
+   * `binary32-or-wider`: the gradients are held in binary32 or binary64; `wide-range`: in a narrower format with
+   * binary32's exponent range (bfloat16, tf32); `scale-factors`: in an 8-bit format with per-tensor or per-block scale
+   * factors, which take the loss scale's place
+   */
+  kind: "binary32-or-wider" | "wide-range" | "scale-factors";
+  /** the reason as a clause, e.g. "gradients are held in bfloat16, which has binary32's exponent range" */
+  sentence: string;
+}
+
+/**
+ * One gradient format's loss-scale item: `window` (a static scale fits; `answer` has the window and its pick), `empty`
+ * (no static scale does; `answer` has the remedies) or `not-needed` (the format takes no scale; `reason` says why).
+ * `answer` is the same object as `lossScaleAnswer` or an entry of `moreLossScaleAnswers`.
+ */
+export type LossScaleItem =
+  | { format: FormatName; status: "window" | "empty"; answer: LossScaleAnswer }
+  | { format: FormatName; status: "not-needed"; reason: UnscaledReason };
 
 /** Options of {@link check}: those of the judgement, plus the loss-scale answer's. */
 export interface CheckAnswerOptions extends CheckOptions {
@@ -64,11 +92,13 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  */
 export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements): CheckAnswer {
   const plan = choosePlan(spec, options.plan);
+  // bad options (a loss scale, a format name) fail here, before the graph, the prediction and the window searches
+  const formats = checkedFormats(plan, options);
   const built = buildGraph(spec);
   if (!built.ok) throw new CheckInputError(built.issues);
   const planned = { ...spec, precision: plan };
   const prediction = measuredPrediction(built.graph, planned, measurements);
-  const answers = lossScaleAnswers(prediction, plan, options, spec.training.horizon.steps);
+  const answers = lossScaleAnswers(prediction, plan, formats, options, spec.training.horizon.steps);
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
   // scale wins over the windows in the judgement)
@@ -99,21 +129,51 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
     if (SEVERITY[scaleVerdict] > SEVERITY[verdict]) verdict = scaleVerdict;
   }
   const answer = told[0] ?? null;
+  const lossScales = lossScaleItems(judged, plan, told);
   return told.length > 1
-    ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), optimizer }
-    : { ...judged, verdict, lossScaleAnswer: answer, optimizer };
+    ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), lossScales, optimizer }
+    : { ...judged, verdict, lossScaleAnswer: answer, lossScales, optimizer };
+}
+
+/** The items of `CheckAnswer.lossScales`, from the judgement and the answers as told. */
+function lossScaleItems(judged: CheckResult, plan: PrecisionPlan, answers: readonly LossScaleAnswer[]): LossScaleItem[] {
+  const items: LossScaleItem[] = [];
+  for (const format of judged.formats) {
+    if (!format.holds.includes("gradients")) continue;
+    const answer = answers.find((a) => a.format === format.format);
+    items.push(answer === undefined ? unscaledItem(planFor(plan, format.format)) : answerItem(answer));
+  }
+  for (const answer of answers) if (!items.some((item) => item.status !== "not-needed" && item.answer === answer)) items.push(answerItem(answer));
+  if (items.length === 0) items.push(unscaledItem(plan));
+  return items;
+}
+
+function answerItem(answer: LossScaleAnswer): LossScaleItem {
+  const w = answer.window;
+  const empty = w.empty || w.pickLog2 === null || w.lowestLog2 === null || w.highestLog2 === null;
+  return { format: answer.format, status: empty ? "empty" : "window", answer };
+}
+
+// a plan whose gradients need a scale always has an answer (lossScaleAnswers searched one for every such judged plan)
+function unscaledItem(plan: PrecisionPlan): LossScaleItem {
+  const reason = unscaledReason(plan);
+  if (reason === null) throw new Error(`internal: ${plan.gradients} gradients need a loss scale but have no answer`);
+  return { format: plan.gradients, status: "not-needed", reason };
 }
 
 /**
  * The loss-scale answers for the formats judged: one per gradient format that needs a scale under a judged format's
  * plan (`planFor`), in the order of the formats. The plan's own gradients are answered under the plan itself.
  */
-function lossScaleAnswers(prediction: Prediction, plan: PrecisionPlan, options: CheckAnswerOptions, steps: number): LossScaleAnswer[] {
-  const formats = options.formats !== undefined && options.formats.length > 0 ? options.formats : planFormats(plan);
+function lossScaleAnswers(
+  prediction: Prediction,
+  plan: PrecisionPlan,
+  formats: readonly FormatName[],
+  options: CheckAnswerOptions,
+  steps: number,
+): LossScaleAnswer[] {
   const answers: LossScaleAnswer[] = [];
   for (const format of formats) {
-    // an unknown name is the judgement's to report (RangeError, with the accepted names)
-    if (!isFormatName(format)) continue;
     const evaluated = planFor(plan, format);
     if (!needsLossScale(evaluated) || answers.some((a) => a.format === evaluated.gradients)) continue;
     answers.push(
@@ -133,9 +193,26 @@ function lossScaleAnswers(prediction: Prediction, plan: PrecisionPlan, options: 
  * range and are trained unscaled (Kalamkar et al. 2019, from memory, unconfirmed; SCIENCE.md §1.2).
  */
 export function needsLossScale(plan: PrecisionPlan): boolean {
-  const format = FORMATS[plan.gradients];
-  if (format.exponentBits > 5) return false;
-  return !(format.bits === 8 && plan.scaling !== "none");
+  return unscaledReason(plan) === null;
+}
+
+/**
+ * Why the plan's gradients take no loss scale (the rule of {@link needsLossScale}), or null when they need one. It
+ * says nothing of the gradients' sizes: the tensors' own findings tell whether any overflows or flushes unscaled.
+ */
+export function unscaledReason(plan: PrecisionPlan): UnscaledReason | null {
+  const name = plan.gradients;
+  const format = FORMATS[name];
+  // binary32's exponent range takes 8 bits (IEEE 754-2019 Table 3.5); binary16's 5 do not reach it
+  if (format.exponentBits > 5) {
+    return format.bits >= 32
+      ? { kind: "binary32-or-wider", sentence: `gradients are held in ${name}` }
+      : { kind: "wide-range", sentence: `gradients are held in ${name}, which has binary32's exponent range` };
+  }
+  if (format.bits === 8 && plan.scaling !== "none") {
+    return { kind: "scale-factors", sentence: `gradients are held in ${name} with per-${plan.scaling} scale factors` };
+  }
+  return null;
 }
 
 function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {

@@ -15,10 +15,16 @@ export type LossScaleSummary =
   | { status: "window"; pickLog2: number; lowLog2: number; highLog2: number }
   /** no static scale serves the whole horizon; `reason` says why in plain words */
   | { status: "empty"; reason: string }
-  /** no loss scale is needed: gradients are held in a format with binary32's range (bfloat16, binary32) */
-  | { status: "not-needed" }
+  /**
+   * no loss scale is needed: gradients are held in a format with binary32's range (bfloat16, binary32), or in an 8-bit
+   * format with scale factors; `reason` says which, as a clause (absent from rows that do not give it)
+   */
+  | { status: "not-needed"; reason?: string }
   /** the check did not evaluate a loss scale */
   | { status: "not-evaluated" };
+
+/** One gradient format's loss-scale answer in a row: the format, then the fields of its summary. */
+export type FormatLossScale = { format: string } & Exclude<LossScaleSummary, { status: "not-evaluated" }>;
 
 /** The worst thing found in a spec: one tensor (or operation) in one format. */
 export interface WorstSummary {
@@ -41,7 +47,13 @@ export interface SpecSummary {
   verdict: SummaryVerdict;
   /** the verdict of each format the plan uses, in the plan's order */
   formats: { format: string; verdict: SummaryVerdict }[];
+  /** the loss-scale answer of the check (the first gradient format that needs a scale, else "not needed") */
   lossScale: LossScaleSummary;
+  /**
+   * every gradient format's answer, in the order of the check's `lossScales` (one for a plan as written; several with
+   * `--format A,B`); empty when the check gave none. Absent from rows of judges that give only `lossScale`
+   */
+  lossScales?: FormatLossScale[];
   /** null when nothing was found */
   worst: WorstSummary | null;
 }

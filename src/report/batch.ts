@@ -6,7 +6,8 @@ import { FORMAT_NAMES } from "../formats/names.js";
 import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
 import { renderCsv, type CsvField } from "./csv.js";
 import { escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
-import { formatBinades, formatCompactCount, formatPercent, formatPowerOfTwo, formatProbability, formatValue } from "./number.js";
+import { lossScaleCells } from "./loss-scale.js";
+import { formatBinades, formatCompactCount, formatPercent, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable, type Cell, type TableColumn } from "./table.js";
 
@@ -58,21 +59,25 @@ export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">):
   }
 }
 
-/** The loss-scale pick and window as two short cells. */
-export function lossScaleCells(lossScale: LossScaleSummary): { pick: string; window: string } {
-  switch (lossScale.status) {
-    case "window":
-      return {
-        pick: formatPowerOfTwo(lossScale.pickLog2),
-        window: `${formatPowerOfTwo(lossScale.lowLog2)}..${formatPowerOfTwo(lossScale.highLog2)}`,
-      };
-    case "empty":
-      return { pick: "none", window: "empty" };
-    case "not-needed":
-      return { pick: "not needed", window: "-" };
-    case "not-evaluated":
-      return { pick: "not evaluated", window: "not evaluated" };
-  }
+/**
+ * A row's loss-scale pick and window cells: the one answer's, or, when the check answered for several gradient formats
+ * (`check --format A,B`), each format's joined by "; " and led by its name ("e5m2 2^13; bfloat16 not needed").
+ */
+export function rowLossScaleCells(summary: SpecSummary): { pick: string; window: string } {
+  const scales = summary.lossScales ?? [];
+  if (scales.length <= 1) return lossScaleCells(summary.lossScale);
+  const cells = scales.map((s) => ({ format: s.format, ...lossScaleCells(s) }));
+  return { pick: cells.map((c) => `${c.format} ${c.pick}`).join("; "), window: cells.map((c) => `${c.format} ${c.window}`).join("; ") };
+}
+
+/**
+ * The CSV cell of every gradient format's answer: entries joined by "; ", each `format:status`, with
+ * `:pick:low:high` (exponents of two) for a window, e.g. "e5m2:window:13:11:17; bfloat16:not-needed".
+ */
+export function lossScalesCsvCell(summary: SpecSummary): string {
+  return (summary.lossScales ?? [])
+    .map((s) => (s.status === "window" ? `${s.format}:window:${s.pickLog2}:${s.lowLog2}:${s.highLog2}` : `${s.format}:${s.status}`))
+    .join("; ");
 }
 
 /** The formats used by any row, in headroom's canonical order. */
@@ -140,7 +145,7 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
       return [...lead, paintVerdict(style, "error"), ...formats.map(() => ""), "", "", "", ""];
     }
     const s = row.summary;
-    const scale = lossScaleCells(s.lossScale);
+    const scale = rowLossScaleCells(s);
     return [
       ...lead,
       paintVerdict(style, s.verdict),
@@ -180,6 +185,7 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
         verdict: s.verdict,
         formats: Object.fromEntries(s.formats.map((f) => [f.format, f.verdict])),
         lossScale: s.lossScale,
+        lossScales: s.lossScales ?? [],
         worst: s.worst,
       });
     })
@@ -187,7 +193,11 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
     .join("");
 }
 
-/** The CSV columns: fixed, so scripts can rely on them whatever the specs use. */
+/**
+ * The CSV columns: fixed, so scripts can rely on them whatever the specs use. `loss_scale_log2` to
+ * `loss_scale_status` give the check's loss-scale answer (the row's `lossScale`); `loss_scales`, last so the others
+ * keep their places, gives every gradient format's (see {@link lossScalesCsvCell}).
+ */
 export const BATCH_CSV_HEADER = [
   "index",
   "file",
@@ -207,6 +217,7 @@ export const BATCH_CSV_HEADER = [
   "error",
   "error_line",
   "error_column",
+  "loss_scales",
 ] as const;
 
 /** RFC 4180 CSV: a header, then one record per row, CRLF line ends; one column per known format. */
@@ -231,6 +242,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
         row.error.message,
         row.error.position?.line ?? "",
         row.error.position?.column ?? "",
+        "",
       ];
     }
     const s = row.summary;
@@ -252,6 +264,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
       "",
       "",
       "",
+      lossScalesCsvCell(s),
     ];
   });
   return renderCsv(BATCH_CSV_HEADER, records);
@@ -272,7 +285,7 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
     const lead: MarkdownCell[] = [row.file, ...(withVariants ? [row.variant ?? ""] : [])];
     if (row.status === "error") return [...lead, { markdown: VERDICT_MARK.error }, ...formats.map(() => ""), "", "", "", ""];
     const s = row.summary;
-    const scale = lossScaleCells(s.lossScale);
+    const scale = rowLossScaleCells(s);
     return [
       ...lead,
       { markdown: VERDICT_MARK[s.verdict] },

@@ -4,7 +4,7 @@
  */
 import type { CheckAnswer } from "../check.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
-import { lossScaleItems } from "./summary.js";
+import { itemSummary, lossScaleClause, namesGradientFormats } from "./loss-scale.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -24,22 +24,20 @@ export interface CheckTextOptions {
 export function renderDecisions(result: CheckAnswer, width: number, style: Style = PLAIN): string {
   let out = "";
   out += "\n" + style.role("strong", "Loss scale") + "\n";
-  const items = lossScaleItems(result);
-  // answers are named by their format when it is not the plan's gradient format, or when there are several
-  const named = items.length > 1 || items.some((item) => typeof item !== "string" && item.format !== result.plan.gradients);
-  for (const item of items) {
-    if (typeof item === "string") {
-      out += wrap(`gradients are held in ${item}: no loss scale is needed.`, width, "  ", "  ");
-      continue;
-    }
-    const indent = named ? "    " : "  ";
-    if (named) out += `  ${item.format} gradients:\n`;
-    for (const sentence of item.sentences) out += wrap(sentence, width, indent, indent);
-    item.remedies.forEach((remedy, i) =>
+  // each item's status in the shared wording, named by its gradient format when the outputs name them
+  const named = namesGradientFormats(result);
+  const indent = named ? "    " : "  ";
+  for (const item of result.lossScales) {
+    const clause = `${lossScaleClause(itemSummary(item))}.`;
+    out += wrap(named ? `${item.format} gradients: ${clause}` : clause, width, "  ", indent);
+    if (item.status === "not-needed") continue;
+    const answer = item.answer;
+    for (const sentence of answer.sentences) out += wrap(sentence, width, indent, indent);
+    answer.remedies.forEach((remedy, i) =>
       out += wrap(`${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`, width, `${indent}${i + 1}. `, `${indent}   `),
     );
-    const d = item.dynamic;
-    if (d && item.remedies.length === 0) {
+    const d = answer.dynamic;
+    if (d && answer.remedies.length === 0) {
       out += wrap(
         `dynamic scaling (simulated over ${d.steps} steps, seed ${d.seed}): ${d.skippedSteps} skipped steps, settling between ${formatValue(d.settledLowest)} and ${formatValue(d.settledHighest)}.`,
         width,

@@ -5,6 +5,7 @@
 import { scaleLinear } from "d3-scale";
 import type { LossScaleSummary, SummaryVerdict } from "../batch/types.js";
 import { formatRiskValue, verdictWords } from "./batch.js";
+import { lossScaleClause } from "./loss-scale.js";
 import { formatBinades, formatPowerOfTwo } from "./number.js";
 import type { ReportFormatRange, ReportLedger, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
 
@@ -242,17 +243,19 @@ function legendHtml(): string {
 // ---------------------------------------------------------------------------------------------
 // the loss-scale window
 
-function lossScaleSection(summary: LossScaleSummary, notes: readonly string[], unscaledReason: string | undefined): string {
+function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): string {
   const notesHtml = notes.length > 0 ? `<ul class="notes">${notes.map((note) => `<li>${e(note)}</li>`).join("")}</ul>` : "";
+  // the status in the shared wording (report/loss-scale.ts), as text and Markdown give it
+  const status = `Loss scale: ${lossScaleClause(summary)}.`;
+  const statusHtml = e(status).replace(/2\^(-?\d+)/g, (_power, k: string) => powerHtml(Number(k)));
   if (summary.status === "not-evaluated") {
-    return `<p class="not-evaluated"><strong>Not evaluated.</strong> This check did not work out a loss-scale window for the plan.</p>${notesHtml}`;
+    return `<p class="not-evaluated"><strong>${statusHtml}</strong> This check did not work out a loss-scale window for the plan.</p>${notesHtml}`;
   }
   if (summary.status === "not-needed") {
-    const why = unscaledReason === undefined ? "" : `: ${e(unscaledReason)}`;
-    return `<p>No loss scale is needed${why}. Whether any gradient overflows or flushes unscaled is in the tensors' findings.</p>${notesHtml}`;
+    return `<p>${statusHtml} Whether any gradient overflows or flushes unscaled is in the tensors' findings.</p>${notesHtml}`;
   }
   if (summary.status === "empty") {
-    return `<p class="empty-window"><strong>No static loss scale serves the whole horizon.</strong> ${e(summary.reason)}</p>${notesHtml}`;
+    return `<p class="empty-window"><strong>${statusHtml}</strong> ${e(summary.reason)}</p>${notesHtml}`;
   }
   const lo = Math.min(0, summary.lowLog2 - 3);
   const hi = Math.max(24, summary.highLog2 + 3);
@@ -270,16 +273,12 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[], u
     svg += `<text class="tick-label" x="${n(x(tick))}" y="72" text-anchor="middle">${powerSvg(tick)}</text>`;
   }
   svg += `</svg>`;
-  return (
-    `<p>Static loss scales from <strong>${powerHtml(summary.lowLog2)}</strong> to <strong>${powerHtml(summary.highLog2)}</strong> ` +
-    `keep every gradient inside its format from the first step to the end of the horizon; the pick, <strong>${powerHtml(summary.pickLog2)}</strong>, ` +
-    `leaves a margin on both sides.</p><figure class="chart-frame"><div class="scroll">${svg}</div></figure>${notesHtml}`
-  );
+  return `<p>${statusHtml}</p><figure class="chart-frame"><div class="scroll">${svg}</div></figure>${notesHtml}`;
 }
 
 // a section named by its gradient format when the report shows it by name
 function namedLossScaleSection(scale: ReportLossScale): string {
-  const body = lossScaleSection(scale.summary, scale.notes, scale.unscaledReason);
+  const body = lossScaleSection(scale.summary, scale.notes);
   return scale.format === undefined ? body : `<h3>${e(scale.format)} gradients</h3>${body}`;
 }
 

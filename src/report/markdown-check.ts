@@ -3,11 +3,12 @@
  * the worst findings and the loss scale. Pure.
  */
 import { escapeMarkdown, markdownCode, markdownTable } from "./markdown.js";
-import { formatRiskValue, lossScaleCells, verdictWords } from "./batch.js";
+import { formatRiskValue, verdictWords } from "./batch.js";
+import { lossScaleClause, lossScaleSummaries, namesGradientFormats } from "./loss-scale.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
-import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf, unscaledReason } from "./summary.js";
+import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
 
 /** Options of {@link renderCheckMarkdown}. */
 export interface CheckMarkdownOptions {
@@ -56,22 +57,18 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
       ]),
     );
   }
-  // one line, or one per gradient format when the check answered for several (or for another than the plan's)
-  const scales = lossScalesOf(result);
-  const named = scales.length > 1 || scales.some((s) => s.format !== result.plan.gradients);
-  if (scales.length === 0) out += lossScaleLine("Loss scale", lossScaleOf(result), "");
-  else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s.summary, unscaledReason(s.format, result.plan.scaling));
+  // one line, or one per gradient format when the outputs name them (several, or another than the plan's)
+  const scales = lossScaleSummaries(result);
+  const named = namesGradientFormats(result);
+  if (scales.length === 0) out += lossScaleLine("Loss scale", { status: "not-evaluated" });
+  else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s);
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
 }
 
-function lossScaleLine(head: string, scale: LossScaleSummary, unscaled: string): string {
-  const cells = lossScaleCells(scale);
-  return scale.status === "window"
-    ? `\n${head}: pick ${escapeMarkdown(cells.pick)}, window ${escapeMarkdown(cells.window)}.\n`
-    : scale.status === "empty"
-      ? `\n${head}: no static scale serves the whole horizon. ${escapeMarkdown(scale.reason)}\n`
-      : scale.status === "not-needed"
-        ? `\n${head}: not needed (${escapeMarkdown(unscaled)}).\n`
-        : `\n${head}: _not evaluated_.\n`;
+function lossScaleLine(head: string, scale: LossScaleSummary): string {
+  const clause = lossScaleClause(scale);
+  if (scale.status === "not-evaluated") return `\n${head}: _${escapeMarkdown(clause)}_.\n`;
+  const reason = scale.status === "empty" ? ` ${escapeMarkdown(scale.reason)}` : "";
+  return `\n${head}: ${escapeMarkdown(clause)}.${reason}\n`;
 }

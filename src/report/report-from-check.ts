@@ -7,7 +7,8 @@ import type { FormatName } from "../formats/names.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
-import { FINDING_WORDS, findingsWorstFirst, lossScaleOf, lossScalesOf, unscaledReason } from "./summary.js";
+import { itemSummary, namesGradientFormats } from "./loss-scale.js";
+import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
 
@@ -70,17 +71,16 @@ function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
 }
 
 /**
- * The loss-scale sections: one per gradient format the check answered for (see lossScaleItems), named by the format
- * when there are several or it is not the plan's gradient format.
+ * The loss-scale sections: one per loss-scale item of the check (`CheckAnswer.lossScales`), named by the gradient
+ * format when the outputs name them (several, or not the plan's gradient format); "not evaluated" for a bare judgement.
  */
 function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
-  const scales = lossScalesOf(result);
-  if (scales.length === 0) return [{ summary: lossScaleOf(result), notes: [] }];
-  const named = scales.length > 1 || scales.some((s) => s.format !== result.plan.gradients);
-  return scales.map((s) => {
-    const model: ReportLossScale = { summary: s.summary, notes: s.notes };
-    if (named) model.format = s.format;
-    if (s.summary.status === "not-needed") model.unscaledReason = unscaledReason(s.format, result.plan.scaling);
+  if (!("lossScales" in result)) return [{ summary: { status: "not-evaluated" }, notes: [] }];
+  const named = namesGradientFormats(result);
+  return result.lossScales.map((item) => {
+    const { format, ...summary } = itemSummary(item);
+    const model: ReportLossScale = { summary, notes: item.status === "not-needed" ? [] : item.answer.sentences };
+    if (named) model.format = format;
     return model;
   });
 }

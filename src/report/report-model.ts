@@ -70,15 +70,16 @@ export interface ReportFinding {
   sentence: string;
 }
 
-/** The loss-scale section: the summary plus the candidates considered, when the check has them. */
+/**
+ * The loss-scale section: the summary (worded by the shared rule of report/loss-scale.ts; a "not needed" summary
+ * carries its reason) plus the answer's sentences, when the check has them.
+ */
 export interface ReportLossScale {
   summary: LossScaleSummary;
   /** one sentence per bound of the window, e.g. why scales above it overflow */
   notes: string[];
   /** the gradient format the section is about; present when the report shows it by name (several, or not the plan's) */
   format?: string;
-  /** when no scale is needed: why, as a clause ("gradients are held in bfloat16, which has binary32's exponent range") */
-  unscaledReason?: string;
 }
 
 /** Everything the HTML report shows. */

@@ -5,11 +5,8 @@
  */
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
-import { FORMATS } from "../formats/index.js";
-import type { FormatName } from "../formats/names.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
-import type { PrecisionPlan } from "../spec/types.js";
-import type { LossScaleAnswer } from "../scale/recommend.js";
+import { itemSummary, lossScaleSummaries } from "./loss-scale.js";
 
 /** How each kind of finding is named in a row, and what its number measures. */
 export const FINDING_WORDS = {
@@ -90,63 +87,18 @@ export function worstOf(result: CheckResult | CheckAnswer): WorstSummary | null 
 }
 
 /**
- * The loss-scale answer of a check in a row's terms: the window and its pick, an empty window with
- * the reason, "not needed" when gradients are held in a format with binary32's range (bfloat16,
- * binary32), or "not evaluated" for a result without an answer (a bare judgement).
+ * The loss-scale answer of a check in a row's terms: the first answer (`lossScaleAnswer`: its window and pick, or an
+ * empty window with the reason), "not needed" with the reason when no gradient format judged needs a scale, or "not
+ * evaluated" for a result without an answer (a bare judgement). Every gradient format's: `lossScaleSummaries`.
  */
 export function lossScaleOf(result: CheckResult | CheckAnswer): LossScaleSummary {
-  if (!("lossScaleAnswer" in result)) return { status: "not-evaluated" };
-  return answerSummary(result.lossScaleAnswer);
-}
-
-/**
- * What the "Loss scale" section tells, in order: per gradient format held by a judged format, its answer or (a format
- * that needs no scale) its name; then any answer about gradients no judged format holds (a judged format that holds
- * none, such as binary32 for the states, is judged at the plan's scale). The plan's gradient format when none is left.
- */
-export function lossScaleItems(result: CheckAnswer): (LossScaleAnswer | FormatName)[] {
-  const answers = [...(result.lossScaleAnswer === null ? [] : [result.lossScaleAnswer]), ...(result.moreLossScaleAnswers ?? [])];
-  const items: (LossScaleAnswer | FormatName)[] = [];
-  for (const format of result.formats) {
-    if (!format.holds.includes("gradients")) continue;
-    items.push(answers.find((a) => a.format === format.format) ?? format.format);
-  }
-  for (const answer of answers) if (!items.includes(answer)) items.push(answer);
-  if (items.length === 0) items.push(result.plan.gradients);
-  return items;
-}
-
-/**
- * Every loss-scale answer of a check in a row's terms, one per item of {@link lossScaleItems}, with the gradient
- * format it is about and the answer's sentences; empty for a result without an answer (a bare judgement).
- */
-export function lossScalesOf(result: CheckResult | CheckAnswer): { format: FormatName; summary: LossScaleSummary; notes: string[] }[] {
-  if (!("lossScaleAnswer" in result)) return [];
-  return lossScaleItems(result).map((item) =>
-    typeof item === "string" ? { format: item, summary: answerSummary(null), notes: [] } : { format: item.format, summary: answerSummary(item), notes: item.sentences },
-  );
-}
-
-/**
- * Why gradients held in `format` take no loss scale, as a clause: the rule of src/check.ts `needsLossScale`
- * (binary32's exponent range or wider, or 8-bit with scale factors). It says nothing of the gradients' sizes: the
- * tensors' own findings tell whether any overflows or flushes unscaled.
- */
-export function unscaledReason(format: FormatName, scaling: PrecisionPlan["scaling"]): string {
-  const f = FORMATS[format];
-  if (f.bits === 8 && scaling !== "none") return `gradients are held in ${format} with per-${scaling} scale factors`;
-  if (format === "binary32" || format === "binary64") return `gradients are held in ${format}`;
-  return `gradients are held in ${format}, which has binary32's exponent range`;
-}
-
-/** One loss-scale answer in a row's terms; "not needed" for none. */
-function answerSummary(answer: LossScaleAnswer | null): LossScaleSummary {
-  if (answer === null) return { status: "not-needed" };
-  const w = answer.window;
-  if (w.empty || w.pickLog2 === null || w.lowestLog2 === null || w.highestLog2 === null) {
-    return { status: "empty", reason: answer.sentences[0] ?? "no power of two keeps every gradient from both overflowing and flushing" };
-  }
-  return { status: "window", pickLog2: w.pickLog2, lowLog2: w.lowestLog2, highLog2: w.highestLog2 };
+  if (!("lossScales" in result)) return { status: "not-evaluated" };
+  const answer = result.lossScaleAnswer;
+  // with no answer every item is "not needed"; an answer is always among the items
+  const item = answer === null ? result.lossScales[0] : result.lossScales.find((i) => i.status !== "not-needed" && i.answer === answer);
+  if (item === undefined) return { status: "not-evaluated" };
+  const { format: _format, ...summary } = itemSummary(item);
+  return summary;
 }
 
 /** One batch row's worth of a check result. */
@@ -156,6 +108,7 @@ export function summarizeCheck(result: CheckResult | CheckAnswer): SpecSummary {
     verdict: result.verdict,
     formats: result.formats.map((format) => ({ format: format.format, verdict: format.verdict })),
     lossScale: lossScaleOf(result),
+    lossScales: lossScaleSummaries(result),
     worst: worstOf(result),
   };
 }

@@ -39,12 +39,17 @@ export interface CheckOptions {
   /** also report each tensor's numbers in the judged formats that do not hold it (off by default) */
   everyFormat?: boolean;
   /**
-   * a loss-scale window searched for the plan's gradients; when no scale is given, its pick is applied to every judged
-   * format whose plan as judged (`planFor`) holds gradients in the window's format
+   * loss-scale windows searched for the gradients (set by `check`: one per gradient format of the formats judged); when
+   * no scale is given, each window's pick is applied to every judged format whose plan as judged (`planFor`) holds
+   * gradients in the window's format
+   */
+  lossScaleWindows?: readonly LossScaleWindowSummary[];
+  /**
+   * the older spelling for one window, kept for callers of `judgePrediction`: the same as one more entry at the end of
+   * `lossScaleWindows` (read in one place, `windowsOf`)
+   * @deprecated give `lossScaleWindows: [window]`
    */
   lossScaleWindow?: LossScaleWindowSummary;
-  /** windows searched for other gradient formats (set by `check`: one per gradient format of the formats judged), applied as `lossScaleWindow` is */
-  lossScaleWindows?: readonly LossScaleWindowSummary[];
 }
 
 /** The plan entries a format can hold. */
@@ -226,7 +231,7 @@ function settingScales(given: AppliedLossScale | undefined, settings: readonly F
     for (let i = 0; i < settings.length; i++) scales.push(given);
     return scales;
   }
-  const windows = [...(options.lossScaleWindows ?? []), ...(options.lossScaleWindow === undefined ? [] : [options.lossScaleWindow])];
+  const windows = windowsOf(options);
   const applied = windows.map(windowScale);
   let unscaled: AppliedLossScale | undefined;
   for (let i = 0; i < settings.length; i++) {
@@ -235,6 +240,24 @@ function settingScales(given: AppliedLossScale | undefined, settings: readonly F
     scales.push(found >= 0 ? (applied[found] as AppliedLossScale) : (unscaled ??= { value: 1, origin: "none" }));
   }
   return scales;
+}
+
+// the windows given, the older single `lossScaleWindow` mapped onto the list (its only reader)
+function windowsOf(options: CheckOptions): readonly LossScaleWindowSummary[] {
+  const single = options.lossScaleWindow;
+  if (single === undefined) return options.lossScaleWindows ?? [];
+  return [...(options.lossScaleWindows ?? []), single];
+}
+
+/**
+ * The formats a judgement with these options judges, each once, after validating the options: the given loss scale
+ * (RangeError unless positive and finite), then every name of `formats` (RangeError naming an unknown one, with the
+ * accepted names). The one place they are checked: `check` calls it before any work, {@link judgePrediction} too.
+ */
+export function checkedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {
+  // a bad loss scale is reported before an unknown format, as it always was
+  givenLossScale(plan, options);
+  return judgedFormats(plan, options);
 }
 
 function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[] {

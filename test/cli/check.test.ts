@@ -129,7 +129,7 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(text.stderr).toBe("");
     const flat = text.stdout.replace(/\s+/g, " ");
     expect(flat).toContain(`loss scale for e5m2: none in the plan; judged with the recommended 2^${pick} = ${2 ** pick}`);
-    expect(text.stdout).toMatch(/\nLoss scale\n {2}e5m2 gradients:\n/);
+    expect(text.stdout).toMatch(new RegExp(`\\nLoss scale\\n {2}e5m2 gradients: pick 2\\^${pick}, window `));
     expect(flat).toContain(`Use a static loss scale of 2^${pick}`);
     // exit code 1 when the verdict is "fails", 0 otherwise (README.md, "Exit codes")
     expect(text.status).toBe((JSON.parse(json.stdout) as { verdict: string }).verdict === "fails" ? 1 : 0);

@@ -1,5 +1,9 @@
+import { readFileSync } from "node:fs";
 import { describe, expect, test } from "vitest";
 import { batchExitCode, type BatchRow } from "../../src/batch/types.js";
+import { check } from "../../src/check.js";
+import { summarizeCheck } from "../../src/report/summary.js";
+import { parseSpec } from "../../src/spec/index.js";
 import {
   BATCH_CSV_HEADER,
   batchCountLine,
@@ -170,5 +174,57 @@ describe("countRows / batchCountLine", () => {
   test("counts outcomes", () => {
     expect(countRows(ROWS)).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0 });
     expect(batchCountLine([ROWS[0]!])).toBe("1 spec: 1 fit, 0 at risk, 0 fail");
+  });
+});
+
+describe("a check with two loss-scale answers (check --format binary16,e5m2)", () => {
+  const parsed = parseSpec(readFileSync("specs/wide-classifier.yaml", "utf8"), "specs/wide-classifier.yaml");
+  if (!parsed.ok) throw new Error("specs/wide-classifier.yaml does not parse");
+  const result = check(parsed.spec, { formats: ["binary16", "e5m2"] });
+  const [b16, e5m2] = [result.lossScaleAnswer!.window, result.moreLossScaleAnswers![0]!.window];
+  const row: BatchRow = { index: 0, file: "wide.yaml", variant: null, status: "ok", summary: summarizeCheck(result) };
+  // an answer's row fields: the window's exponents of two, or "empty"
+  const fields = (w: typeof b16) => (w.empty ? { status: "empty" } : { status: "window", pickLog2: w.pickLog2, lowLog2: w.lowestLog2, highLog2: w.highestLog2 });
+  const cell = (w: typeof b16) => (w.empty ? "none" : `2^${w.pickLog2}`);
+  const windowCell = (w: typeof b16) => (w.empty ? "empty" : `2^${w.lowestLog2}..2^${w.highestLog2}`);
+
+  test("the row keeps the first answer in lossScale and gives both in lossScales", () => {
+    expect(row.status === "ok" && row.summary.lossScale).toMatchObject(fields(b16));
+    expect(row.status === "ok" && row.summary.lossScales).toMatchObject([{ format: "binary16", ...fields(b16) }, { format: "e5m2", ...fields(e5m2) }]);
+  });
+
+  test("the table and Markdown name each format in the loss-scale and window cells", () => {
+    const pick = `binary16 ${cell(b16)}; e5m2 ${cell(e5m2)}`;
+    const window = `binary16 ${windowCell(b16)}; e5m2 ${windowCell(e5m2)}`;
+    const line = renderBatchText([row]).split("\n")[2]!;
+    expect(line).toContain(pick);
+    expect(line).toContain(window);
+    expect(renderBatchMarkdown([row])).toContain(`| ${pick} | ${window} |`);
+  });
+
+  test("JSONL: one object on one line, with both answers", () => {
+    const lines = renderBatchJsonl([row]).split("\n");
+    expect(lines).toHaveLength(2);
+    const object = JSON.parse(lines[0]!);
+    expect(object.lossScale).toMatchObject(fields(b16));
+    expect(object.lossScales).toMatchObject([{ format: "binary16", ...fields(b16) }, { format: "e5m2", ...fields(e5m2) }]);
+  });
+
+  test("CSV: the first answer in the old columns, both in loss_scales; a strict RFC 4180 reader agrees", () => {
+    const records = parseRfc4180(renderBatchCsv([row]));
+    expect(records).toHaveLength(2);
+    const at = (name: string) => BATCH_CSV_HEADER.indexOf(name as (typeof BATCH_CSV_HEADER)[number]);
+    const entry = (format: string, w: typeof b16) => (w.empty ? `${format}:empty` : `${format}:window:${w.pickLog2}:${w.lowestLog2}:${w.highestLog2}`);
+    expect(records[1]![at("loss_scale_status")]).toBe(b16.empty ? "empty" : "window");
+    expect(records[1]![at("loss_scale_log2")]).toBe(b16.empty ? "" : String(b16.pickLog2));
+    expect(records[1]![at("loss_scales")]).toBe(`${entry("binary16", b16)}; ${entry("e5m2", e5m2)}`);
+  });
+
+  test("a row with one answer keeps its cells unnamed, and a not-needed answer reads 'not needed'", () => {
+    const single = renderBatchText([{ ...row, summary: summarizeCheck(check(parsed.spec)) }]).split("\n")[2]!;
+    expect(single).toContain(` ${cell(b16)} `);
+    expect(single).not.toContain("binary16 2^");
+    const both = renderBatchText([{ ...row, summary: summarizeCheck(check(parsed.spec, { formats: ["bfloat16", "e5m2"] })) }]).split("\n")[2]!;
+    expect(both).toContain(`bfloat16 not needed; e5m2 ${cell(e5m2)}`);
   });
 });

@@ -35,7 +35,8 @@ describe("terminal text", () => {
     const text = renderCheckText(e5m2, { width: 400 });
     expect(text).toContain(`loss scale for e5m2: none in the plan; judged with the recommended 2^${e5m2Pick} = ${2 ** e5m2Pick}`);
     const scale = section(text, "Loss scale");
-    expect(scale).toContain("  e5m2 gradients:\n");
+    const w = e5m2.lossScaleAnswer!.window;
+    expect(scale).toContain(`  e5m2 gradients: pick 2^${e5m2Pick}, window 2^${w.lowestLog2}..2^${w.highestLog2}.\n`);
     expect(scale).toContain(`Use a static loss scale of 2^${e5m2Pick}`);
     expect(scale).not.toContain("binary16");
   });
@@ -45,8 +46,8 @@ describe("terminal text", () => {
     expect(text).toContain(`loss scale for e5m2: none in the plan; judged with the recommended 2^${e5m2Pick}`);
     expect(text).toContain("loss scale for bfloat16: none given, gradients judged unscaled.");
     const scale = section(text, "Loss scale");
-    expect(scale).toContain("  e5m2 gradients:\n");
-    expect(scale).toContain("  gradients are held in bfloat16: no loss scale is needed.");
+    expect(scale).toContain(`  e5m2 gradients: pick 2^${e5m2Pick}, `);
+    expect(scale).toContain("  bfloat16 gradients: not needed (gradients are held in bfloat16, which has binary32's exponent range).");
   });
 
   it("shows each row's rms after its own format's scale", () => {
@@ -98,7 +99,7 @@ describe("HTML report", () => {
       highLog2: e5m2.lossScaleAnswer!.window.highestLog2,
     });
     expect(model.moreLossScales).toEqual([
-      { format: "bfloat16", summary: { status: "not-needed" }, notes: [], unscaledReason: "gradients are held in bfloat16, which has binary32's exponent range" },
+      { format: "bfloat16", summary: { status: "not-needed", reason: "gradients are held in bfloat16, which has binary32's exponent range" }, notes: [] },
     ]);
     const html = renderHtmlReport(model);
     expect(html).toContain("<h3>e5m2 gradients</h3>");

@@ -54,12 +54,14 @@ describe("renderHtmlReport", () => {
 
   test("labels a loss scale that was not evaluated, and an empty window with its reason", () => {
     const notEvaluated = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-evaluated" }, notes: [] } });
-    expect(notEvaluated).toContain("<strong>Not evaluated.</strong>");
+    expect(notEvaluated).toContain("<strong>Loss scale: not evaluated.</strong>");
     expect(notEvaluated).not.toContain("scale-chart");
     const notNeeded = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed" }, notes: [] } });
-    expect(notNeeded).toContain("No loss scale is needed");
+    expect(notNeeded).toContain("<p>Loss scale: not needed.");
+    const because = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed", reason: "gradients are held in <x>" }, notes: [] } });
+    expect(because).toContain("<p>Loss scale: not needed (gradients are held in &lt;x&gt;).");
     const empty = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "empty", reason: "gradients <flush>" }, notes: [] } });
-    expect(empty).toContain("No static loss scale serves the whole horizon.</strong> gradients &lt;flush&gt;");
+    expect(empty).toContain("Loss scale: no static scale serves the whole horizon.</strong> gradients &lt;flush&gt;");
   });
 });
 

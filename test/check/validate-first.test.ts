@@ -1,0 +1,53 @@
+import { readFileSync } from "node:fs";
+import { beforeEach, describe, expect, it, vi } from "vitest";
+import { check } from "../../src/check.js";
+import { FORMAT_NAMES, type FormatName } from "../../src/formats/names.js";
+import { predict } from "../../src/magnitude/index.js";
+import { lossScaleAnswer } from "../../src/scale/recommend.js";
+import { parseSpec } from "../../src/spec/index.js";
+
+// check() validates its options (the loss scale, then every format name) in one place before any work: a bad name
+// next to a good one fails with the judge's message, and no prediction or loss-scale window search runs first.
+vi.mock("../../src/scale/recommend.js", async (importOriginal) => {
+  const original = await importOriginal<typeof import("../../src/scale/recommend.js")>();
+  return { ...original, lossScaleAnswer: vi.fn(original.lossScaleAnswer) };
+});
+vi.mock("../../src/magnitude/index.js", async (importOriginal) => {
+  const original = await importOriginal<typeof import("../../src/magnitude/index.js")>();
+  return { ...original, predict: vi.fn(original.predict) };
+});
+
+const parsed = parseSpec(readFileSync("specs/wide-classifier.yaml", "utf8"), "specs/wide-classifier.yaml");
+if (!parsed.ok) throw new Error("specs/wide-classifier.yaml does not parse");
+const spec = parsed.spec;
+// the judge's message for an unknown name (src/risk/judge.ts), with the accepted names
+const unknown = (name: string) => `unknown format "${name}"; accepted: ${FORMAT_NAMES.join(", ")}`;
+
+beforeEach(() => {
+  vi.mocked(lossScaleAnswer).mockClear();
+  vi.mocked(predict).mockClear();
+});
+
+describe("check validates its formats before any work", () => {
+  it("a good format searches its window (the spies see the work)", () => {
+    check(spec, { formats: ["binary16"] });
+    expect(vi.mocked(predict)).toHaveBeenCalledTimes(1);
+    expect(vi.mocked(lossScaleAnswer)).toHaveBeenCalledTimes(1);
+  });
+
+  it("nosuchformat,binary16: RangeError with the judge's message; no prediction, no window search", () => {
+    expect(() => check(spec, { formats: ["nosuchformat" as FormatName, "binary16"] })).toThrow(new RangeError(unknown("nosuchformat")));
+    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+    expect(vi.mocked(lossScaleAnswer)).not.toHaveBeenCalled();
+  });
+
+  it("binary16,nosuchformat likewise: the good name first does not start the searches", () => {
+    expect(() => check(spec, { formats: ["binary16", "nosuchformat" as FormatName] })).toThrow(unknown("nosuchformat"));
+    expect(vi.mocked(lossScaleAnswer)).not.toHaveBeenCalled();
+  });
+
+  it("a bad loss scale is still reported before an unknown format", () => {
+    expect(() => check(spec, { formats: ["nosuchformat" as FormatName], lossScale: -1 })).toThrow("the loss scale must be a positive finite number, got -1");
+    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+  });
+});
