@@ -6,7 +6,7 @@ import { scaleLinear } from "d3-scale";
 import type { LossScaleSummary, SummaryVerdict } from "../batch/types.js";
 import { formatRiskValue, verdictWords } from "./batch.js";
 import { lossScaleClause } from "./loss-scale.js";
-import { formatBinades, formatPowerOfTwo } from "./number.js";
+import { formatBinades, formatPowerOfTwo, formatValue } from "./number.js";
 import type { ReportFormatRange, ReportLedger, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
 
 export type { ReportModel } from "./report-model.js";
@@ -348,7 +348,7 @@ function formatsTable(model: ReportModel): string {
     .map((f) => {
       const r = ranges.get(f.format);
       const range = r
-        ? `<td class="num">${powerHtml(round1(r.smallestLog2))}</td><td class="num">${powerHtml(round1(r.minNormalLog2))}</td><td class="num">${powerHtml(round1(r.maxLog2))}</td>`
+        ? `<td class="num">${powerHtml(round1(r.smallestLog2))}</td><td class="num">${powerHtml(round1(r.minNormalLog2))}</td><td class="num">${e(formatValue(r.largest, 5))}</td>`
         : `<td></td><td></td><td></td>`;
       return `<tr><td>${e(f.format)}</td><td>${e(f.roles.join(", "))}</td><td><span class="pill ${verdictClass(f.verdict)}">${e(verdictWords(f.verdict))}</span></td>${range}</tr>`;
     })

@@ -34,6 +34,7 @@ export function formatRange(name: FormatName, flushSubnormals: boolean, roles: s
   return {
     format: name,
     maxLog2: Math.log2(format.maxFinite),
+    largest: format.maxFinite,
     minNormalLog2: Math.log2(format.minNormal),
     smallestLog2: Math.log2(flushes ? format.minNormal : format.minSubnormal),
     roles,

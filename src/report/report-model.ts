@@ -10,6 +10,8 @@ export interface ReportFormatRange {
   format: string;
   /** log2 of the largest finite value */
   maxLog2: number;
+  /** the largest finite value itself (below 2^ceil(maxLog2): binary16's is 65504, not 2^16) */
+  largest: number;
   /** log2 of the smallest normal value */
   minNormalLog2: number;
   /** log2 of the smallest nonzero value kept: the smallest subnormal, or the smallest normal when subnormals flush */

@@ -75,3 +75,28 @@ describe("bandDomain", () => {
     expect(hi).toBeLessThan(128);
   });
 });
+
+describe("the formats table of a report", () => {
+  // IEEE 754-2019 §3.6: binary16's largest finite value is (2 − 2^-10)·2^15 = 65504, below 2^16; bfloat16 (8 exponent
+  // bits, 8 significant bits) (2 − 2^-7)·2^127 ≈ 3.3895e38, below 2^128. Rounding log2 of them printed 2^16 and 2^128.
+  const table = async (spec: string): Promise<string> => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { loadSpec } = await import("../../src/spec/index.js");
+    const loaded = await loadSpec(new URL(`../../specs/${spec}`, import.meta.url).pathname);
+    if (!loaded.ok) throw new Error("example does not load");
+    const html = renderHtmlReport(reportModel(check(loaded.spec), { version: "test" }));
+    const start = html.indexOf("smallest kept");
+    return html.slice(start, html.indexOf("</table>", start));
+  };
+
+  test("gives the largest finite value itself, not a rounded power of two", async () => {
+    const half = await table("cnn-batchnorm.yaml");
+    expect(half).toContain(`<td class="num">65504</td>`);
+    const brain = await table("transformer-encoder.yaml");
+    expect(brain).toContain(`<td class="num">${((2 - 2 ** -7) * 2 ** 127).toExponential(4).replace("e+", "e")}</td>`);
+    // binary32: (2 − 2^-23)·2^127, Math.fround's largest finite value
+    expect(brain).toContain(`<td class="num">${(2 ** 127 * (2 - 2 ** -23)).toExponential(4).replace("e+", "e")}</td>`);
+    for (const t of [half, brain]) expect(t).not.toMatch(/<sup>16<\/sup>|<sup>128<\/sup>/);
+  });
+});
