@@ -3,7 +3,7 @@
  * command it was given to. `splitList` splits and trims; `parseFormatList` reads format names on top of it.
  */
 import { FORMAT_NAMES, getFormat, type Format } from "../formats/index.js";
-import { didYouMean } from "../spec/issues.js";
+import { didYouMeanFormat } from "../spec/issues.js";
 import { UserError } from "./errors.js";
 
 /**
@@ -27,9 +27,9 @@ const ACCEPTED_FORMATS = `accepted: ${FORMAT_NAMES.join(", ")} (comma-separated)
 
 /**
  * Number formats named by an option (`--format`, `--to`) or by arguments (`headroom formats NAME...`): names and
- * aliases (fp16, bf16) as getFormat accepts them, case-insensitive. A format named twice, by the same name or by an
- * alias, is judged once, in the place it was first named: the list is a set. An unknown name is an input error with
- * the nearest known name when one is close.
+ * the accepted aliases (fp16, bf16) as getFormat takes them, case-insensitive. A format named twice, by the same name
+ * or by an alias, is judged once, in the place it was first named: the list is a set. An unknown name is an input
+ * error with the hint a spec would get: the format an alias only suggested stands for (f16), else the nearest name.
  */
 export function parseFormatList(label: string, values: string | readonly string[]): Format[] {
   const formats: Format[] = [];
@@ -38,7 +38,7 @@ export function parseFormatList(label: string, values: string | readonly string[
     try {
       format = getFormat(item);
     } catch {
-      throw new UserError(`${label}: unknown format ${JSON.stringify(item)}${didYouMean(item.toLowerCase(), FORMAT_NAMES)}; ${ACCEPTED_FORMATS}`);
+      throw new UserError(`${label}: unknown format ${JSON.stringify(item)}${didYouMeanFormat(item.toLowerCase(), FORMAT_NAMES)}; ${ACCEPTED_FORMATS}`);
     }
     if (!formats.includes(format)) formats.push(format);
   }

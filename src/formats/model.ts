@@ -2,7 +2,7 @@
  * The generic floating-point format model: one record per format, built from exponent bits, fraction bits,
  * bias and the special-value encoding, with every limit derived from those four parameters.
  */
-import { FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
+import { FORMAT_ALIASES, FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
 
 /**
  * What a conversion does with a value whose rounded magnitude exceeds the largest finite value.
@@ -225,32 +225,17 @@ export const FORMATS: Readonly<Record<FormatName, Format>> = Object.freeze({
   }),
 });
 
-/** Alternative spellings accepted by getFormat (lower case). */
-const ALIASES: Readonly<Record<string, FormatName>> = {
-  fp16: "binary16",
-  float16: "binary16",
-  half: "binary16",
-  bf16: "bfloat16",
-  fp32: "binary32",
-  float32: "binary32",
-  single: "binary32",
-  fp64: "binary64",
-  float64: "binary64",
-  double: "binary64",
-  "fp8-e5m2": "e5m2",
-  "fp8-e4m3": "e4m3",
-};
-
 /**
- * Look a format up by name (case-insensitive; common aliases such as fp16 and bf16 accepted).
+ * Look a format up by name (case-insensitive; the accepted aliases of FORMAT_ALIASES, such as fp16 and bf16, too).
  * Throws a RangeError that echoes the name and lists the accepted ones.
  * @example getFormat("bf16").precision // => 8
  */
 export function getFormat(name: string): Format {
   const key = name.trim().toLowerCase();
   if (isFormatName(key)) return FORMATS[key];
-  const alias = ALIASES[key];
-  if (alias !== undefined) return FORMATS[alias];
+  // only the aliases marked accepted: the others are suggestions in messages, never taken as the format
+  const alias = Object.hasOwn(FORMAT_ALIASES, key) ? FORMAT_ALIASES[key] : undefined;
+  if (alias?.accepted === true) return FORMATS[alias.format];
   throw new RangeError(`unknown format "${name}"; accepted: ${FORMAT_NAMES.join(", ")}`);
 }
 

@@ -2,6 +2,7 @@
  * Problems found in a network spec, as plain values, and their one-line rendering.
  * Messages are not sentences: lowercase start, no trailing period.
  */
+import { formatOfAlias } from "../formats/names.js";
 import type { SpecPath } from "./types.js";
 
 /** A place in a spec file; line and column are 1-based (0 when the problem concerns the file as a whole). */
@@ -59,23 +60,46 @@ function editDistance(a: string, b: string): number {
   return d[a.length]![b.length]!;
 }
 
+/** How many leading characters two strings share. */
+function sharedPrefix(a: string, b: string): number {
+  let i = 0;
+  while (i < a.length && i < b.length && a[i] === b[i]) i++;
+  return i;
+}
+
 /**
  * The closest candidate to a misspelt word, or undefined when none is close enough to be a likely typo.
- * Comparison ignores case, "_" versus "-", and camelCase versus kebab-case.
+ * Comparison ignores case, "_" versus "-", and camelCase versus kebab-case. Of equally close candidates, one with
+ * the word's own letters wins (a swap: "binary61" → "binary16", not "binary64"), then the one sharing the longest
+ * start with the word ("e4m2" → "e4m3", not "e5m2": a slip is likelier late in a word than in its first letters;
+ * common practice), then the first in the list.
  */
 export function closestWord(word: string, candidates: readonly string[]): string | undefined {
   const fold = (text: string) => text.replace(/([a-z0-9])([A-Z])/g, "$1-$2").toLowerCase().replace(/_/g, "-");
   const target = fold(word);
+  const letters = (text: string) => [...text].sort().join("");
+  const targetLetters = letters(target);
   let best: string | undefined;
   let bestDistance = Infinity;
+  let bestSameLetters = false;
+  let bestPrefix = -1;
   for (const candidate of candidates) {
     const folded = fold(candidate);
     const distance = folded === target ? 0 : editDistance(target, folded);
     // a prefix or suffix of a long key ("learning" for "learning-rate") is a likely slip as well
     const partial = target.length >= 4 && (folded.startsWith(target) || target.startsWith(folded)) ? 1 : Infinity;
     const score = Math.min(distance, partial);
-    if (score < bestDistance) {
+    if (score > bestDistance) continue;
+    const sameLetters = letters(folded) === targetLetters;
+    const prefix = sharedPrefix(target, folded);
+    const better =
+      score < bestDistance ||
+      (sameLetters && !bestSameLetters) ||
+      (sameLetters === bestSameLetters && prefix > bestPrefix);
+    if (better) {
       bestDistance = score;
+      bestSameLetters = sameLetters;
+      bestPrefix = prefix;
       best = candidate;
     }
   }
@@ -87,4 +111,15 @@ export function closestWord(word: string, candidates: readonly string[]): string
 export function didYouMean(word: string, candidates: readonly string[]): string {
   const near = closestWord(word, candidates);
   return near === undefined ? "" : ` (did you mean "${near}"?)`;
+}
+
+/**
+ * ` (did you mean "x"?)` for a misspelt format name, or "": another spelling of a format (FORMAT_ALIASES, accepted
+ * or not) names it, else the nearest of `candidates`. One hint for specs and command-line lists alike.
+ * @example didYouMeanFormat("f16", FORMAT_NAMES) // => ' (did you mean "binary16"?)'
+ */
+export function didYouMeanFormat(word: string, candidates: readonly string[]): string {
+  const alias = formatOfAlias(word);
+  if (alias !== undefined && candidates.includes(alias)) return ` (did you mean "${alias}"?)`;
+  return didYouMean(word, candidates);
 }

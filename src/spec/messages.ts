@@ -5,7 +5,7 @@
  */
 import type * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
-import { didYouMean } from "./issues.js";
+import { didYouMean, didYouMeanFormat } from "./issues.js";
 import { BARE_LAYER_TYPES, FINAL_MESSAGE, LAYER_TYPES, MAX_SIZE } from "./limits.js";
 
 /** A validation problem before it is given a file position. */
@@ -16,29 +16,6 @@ export interface RawIssue {
   message: string;
 }
 
-
-/** Common names of formats that are not how headroom spells them. */
-const FORMAT_ALIASES: Record<string, string> = {
-  fp16: "binary16",
-  float16: "binary16",
-  half: "binary16",
-  f16: "binary16",
-  bf16: "bfloat16",
-  fp32: "binary32",
-  float32: "binary32",
-  single: "binary32",
-  f32: "binary32",
-  float: "binary32",
-  fp64: "binary64",
-  float64: "binary64",
-  double: "binary64",
-  f64: "binary64",
-  "fp8-e4m3": "e4m3",
-  "fp8-e5m2": "e5m2",
-  e4m3fn: "e4m3",
-  float8_e4m3fn: "e4m3",
-  float8_e5m2: "e5m2",
-};
 
 /** How a value reads in a message. */
 export function describeValue(value: unknown): string {
@@ -88,8 +65,8 @@ function knownKeys(inst: unknown): string[] {
 function unknownValueMessage(input: unknown, values: readonly unknown[]): string {
   const strings = values.filter((value): value is string => typeof value === "string");
   if (typeof input === "string" && strings.length > 0 && strings.every((value) => (FORMAT_NAMES as readonly string[]).includes(value))) {
-    const alias = FORMAT_ALIASES[input.toLowerCase()];
-    const hint = alias !== undefined && strings.includes(alias) ? ` (did you mean "${alias}"?)` : didYouMean(input, strings);
+    // specs take the canonical names alone (specs/README.md): every alias, even one the command line accepts, is a hint
+    const hint = didYouMeanFormat(input, strings);
     return `unknown format ${JSON.stringify(input)}${hint}; expected one of ${quoteList(strings)}`;
   }
   if (typeof input === "string" && strings.length === BARE_LAYER_TYPES.length && strings.every((v) => (BARE_LAYER_TYPES as readonly string[]).includes(v))) {

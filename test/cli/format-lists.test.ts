@@ -3,6 +3,7 @@
  * message for a misspelt name, with the nearest known name; an empty item refused; a format named twice (by its name
  * or an alias) counted once. The built binary, as users run it.
  */
+import { readFileSync } from "node:fs";
 import { afterAll, describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 import { encode, npyBytes, scratch } from "../measure/writers.js";
@@ -64,6 +65,21 @@ describe("lists of formats: one rule for every command", () => {
       expect(once.stdout.indexOf("binary16")).toBeLessThan(once.stdout.indexOf("e4m3"));
     });
   }
+
+  it("--format f16 gets the hint a spec with f16 gets (one alias table for both)", () => {
+    const text = readFileSync(SPEC, "utf8");
+    expect(text).toContain("  activations: binary16\n");
+    const spec = files.write("f16.yaml", new TextEncoder().encode(text.replace("  activations: binary16\n", "  activations: f16\n")));
+    const fromSpec = runCli(["check", spec]);
+    expect(fromSpec.status).toBe(2);
+    const fromOption = runCli(["check", "--format", "f16", SPEC]);
+    expect(fromOption.status).toBe(2);
+    expect(fromOption.stdout).toBe("");
+    expect(fromOption.stderr).toBe(`headroom: --format: unknown format "f16" (did you mean "binary16"?); ${ACCEPTED}\n`);
+    const hint = / \(did you mean "[^"]+"\?\)/;
+    expect(fromSpec.stderr).toMatch(/precision\.activations: unknown format "f16" \(did you mean "binary16"\?\)/);
+    expect(fromSpec.stderr.match(hint)?.[0]).toBe(fromOption.stderr.match(hint)?.[0]);
+  });
 
   it("check: repeated --format options make one list, read by the same rule", () => {
     const run = runCli(["check", "--json", "--format", "fp16", "--format", "e4m3,binary16", SPEC]);

@@ -3,6 +3,9 @@ import { describe, expect, it } from "vitest";
 import { UserError } from "../../src/cli/errors.js";
 import { parseFormatList, splitList } from "../../src/cli/lists.js";
 import { parseShrink } from "../../src/cli/simulate.js";
+import { getFormat } from "../../src/formats/index.js";
+import { FORMAT_ALIASES as FORMAT_ALIASES } from "../../src/formats/names.js";
+import { parseSpec } from "../../src/spec/index.js";
 
 const ACCEPTED = "accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3 (comma-separated)";
 
@@ -51,6 +54,29 @@ describe("parseFormatList", () => {
     expect(userError(() => parseFormatList("--format", "TF23"))).toBe(`--format: unknown format "TF23" (did you mean "tf32"?); ${ACCEPTED}`);
     expect(userError(() => parseFormatList("--format", "binary3"))).toBe(`--format: unknown format "binary3" (did you mean "binary32"?); ${ACCEPTED}`);
     expect(userError(() => parseFormatList("--format", "int8"))).toBe(`--format: unknown format "int8"; ${ACCEPTED}`);
+  });
+
+  it("one alias table: an accepted alias is taken, an alias only suggested is refused with the hint a spec gets", () => {
+    // a spec takes the canonical names alone (specs/README.md, "Precision plans"): every alias is a hint there
+    const spec = (format: string) =>
+      `input: { features: 4 }\ntraining:\n  batch: 2\n  loss: { kind: cross-entropy, classes: 2 }\nprecision: { activations: ${format} }\nlayers:\n  - { type: dense, width: 2 }\n`;
+    for (const [alias, { format, accepted }] of Object.entries(FORMAT_ALIASES)) {
+      const parsed = parseSpec(spec(alias), "a.yaml");
+      expect(parsed.ok, alias).toBe(false);
+      const specMessage = parsed.ok ? "" : (parsed.issues[0]?.message ?? "");
+      expect(specMessage, alias).toContain(` (did you mean "${format}"?)`);
+      if (accepted) {
+        expect(parseFormatList("--to", alias.toUpperCase()).map((f) => f.name), alias).toEqual([format]);
+      } else {
+        expect(() => getFormat(alias), alias).toThrow(RangeError);
+        expect(userError(() => parseFormatList("--format", alias)), alias).toBe(`--format: unknown format "${alias}" (did you mean "${format}"?); ${ACCEPTED}`);
+      }
+    }
+    // the spellings README promises the command line takes, and one it only suggests
+    expect(FORMAT_ALIASES["fp16"]?.accepted && FORMAT_ALIASES["bf16"]?.accepted && FORMAT_ALIASES["fp32"]?.accepted).toBe(true);
+    expect(FORMAT_ALIASES["f16"]).toEqual({ format: "binary16", accepted: false });
+    // a name inherited from Object.prototype is no alias
+    expect(() => getFormat("constructor")).toThrow(RangeError);
   });
 
   it("reports the first problem in the order given", () => {

@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { closestWord, didYouMean } from "../../src/spec/issues.js";
+import { closestWord, didYouMean, didYouMeanFormat } from "../../src/spec/issues.js";
 import { formatSpecIssue, formatSpecPath } from "../../src/spec/index.js";
 
 describe("formatSpecPath(path)", () => {
@@ -42,6 +42,29 @@ describe("closestWord(word, candidates)", () => {
 
   it("takes the start of a long key for the key", () => {
     expect(closestWord("learning", ["learning-rate", "epsilon"])).toBe("learning-rate");
+  });
+
+  it("breaks ties between equally close candidates: the word's own letters first, then the longest shared start, then list order", () => {
+    // "binary61": one adjacent swap from binary16, one substitution from binary64 (both distance 1, Damerau 1964)
+    expect(closestWord("binary61", ["binary64", "binary16"])).toBe("binary16");
+    expect(closestWord("binary61", ["binary16", "binary64"])).toBe("binary16");
+    // "e4m2": one substitution from e5m2 and from e4m3; e4m3 shares "e4m"
+    expect(closestWord("e4m2", ["binary16", "e5m2", "e4m3"])).toBe("e4m3");
+    expect(closestWord("e5m3", ["e4m3", "e5m2"])).toBe("e5m2");
+    // a nearer candidate still wins over a tie-break: "e4m" is one letter from e4m3, two from e5m2
+    expect(closestWord("e4m", ["e5m2", "e4m3"])).toBe("e4m3");
+    // nothing else to tell them apart: the first in the list
+    expect(closestWord("wxdth", ["width", "wadth"])).toBe("width");
+    expect(closestWord("wxdth", ["wadth", "width"])).toBe("wadth");
+  });
+
+  it("didYouMeanFormat: another spelling of a format names it, else the nearest name", () => {
+    const names = ["binary16", "bfloat16", "binary32", "binary64", "tf32", "e5m2", "e4m3"];
+    expect(didYouMeanFormat("F16", names)).toBe(' (did you mean "binary16"?)');
+    expect(didYouMeanFormat("float8_e4m3fn", names)).toBe(' (did you mean "e4m3"?)');
+    expect(didYouMeanFormat("e4m2", names)).toBe(' (did you mean "e4m3"?)');
+    // an alias whose format is not among the candidates is no hint
+    expect(didYouMeanFormat("double", ["binary16", "bfloat16"])).toBe("");
   });
 
   it("suggests nothing when nothing is close", () => {
