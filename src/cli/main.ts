@@ -1,8 +1,15 @@
 import { Command, CommanderError } from "commander";
+import { didYouMean } from "../spec/issues.js";
 import { UserError, EXIT, takeExitCode } from "./errors.js";
 import { commands } from "./commands.js";
 
-/** Build the commander program with every command registered. */
+/**
+ * Build the commander program with every command registered. The parser's own errors (an unknown option or
+ * command, a missing argument) reach the user as headroom's other errors do: one line `headroom: <message>`, with
+ * our did-you-mean, exit code 2. Commander prints none of them (`outputError`) and suggests nothing itself; each
+ * command's exit hook turns them into a UserError that knows the command (its options, its usage). Help and
+ * version still print as commander writes them.
+ */
 export function buildProgram(): Command {
   const program = new Command("headroom")
     .description(
@@ -10,9 +17,90 @@ export function buildProgram(): Command {
         "flush to zero or overflow, and which loss scale to use. Predictions are estimates; confirm with a short run.",
     )
     .version(VERSION, "-V, --version")
+    // set before the commands are added: each command copies these from the program
+    .configureOutput({ outputError: () => {} })
+    .showSuggestionAfterError(false)
     .exitOverride();
   for (const register of commands) register(program);
+  for (const command of [program, ...program.commands]) {
+    command.exitOverride((error) => {
+      throw isUsageError(error) ? new UserError(parserMessage(error, command, program)) : error;
+    });
+  }
   return program;
+}
+
+/** Help shown on request or for a bare `headroom` (exit 2, as before) and the version are not usage errors. */
+function isUsageError(error: CommanderError): boolean {
+  return error.exitCode !== 0 && error.code !== "commander.help" && error.code !== "commander.helpDisplayed" && error.code !== "commander.version";
+}
+
+/** What a parser error says, in headroom's words: the names quoted as our messages quote them, no trailing period. */
+function parserMessage(error: CommanderError, command: Command, program: Command): string {
+  const text = error.message.replace(/^error: /, "");
+  // commander quotes the name it refuses in single quotes: 'chek', '--formt', '--to <formats>'
+  const quoted = [...text.matchAll(/'([^']*)'/g)].map((match) => match[1] ?? "");
+  const path = command === program ? program.name() : `${program.name()} ${command.name()}`;
+  const usage = `usage: ${path} ${command.usage()}`;
+  switch (error.code) {
+    case "commander.unknownOption": {
+      const flag = quoted[0] ?? "";
+      const hint = optionHint(flag, command);
+      return `unknown option ${JSON.stringify(flag)}${hint === "" ? `; see ${path} --help` : hint}`;
+    }
+    case "commander.unknownCommand": {
+      const name = quoted[0] ?? "";
+      const names = program.commands.map((c) => c.name()).concat("help");
+      const hint = didYouMean(name, names);
+      return `unknown command ${JSON.stringify(name)}${hint === "" ? `; see ${path} --help` : hint}`;
+    }
+    case "commander.missingArgument":
+      return `missing argument ${JSON.stringify(quoted[0] ?? "")}; ${usage}`;
+    case "commander.optionMissingArgument": {
+      const flags = quoted[0] ?? "";
+      return `${longFlag(flags)}: no value given (${flags})`;
+    }
+    case "commander.invalidArgument": {
+      const choices = invalidChoice(text, command);
+      if (choices !== undefined) return choices;
+      break;
+    }
+    case "commander.excessArguments": {
+      const [, expected = "", got = ""] = /Expected (\d+) arguments? but got (\d+)/.exec(text) ?? [];
+      return `too many arguments: ${path} takes ${expected}, got ${got}; ${usage}`;
+    }
+    case "commander.conflictingOption":
+      return quoted.map(longFlag).join(" cannot be used with ");
+  }
+  return text.replace(/'([^']*)'/g, (_, name: string) => JSON.stringify(name)).replace(/\s*\n\s*/g, " ").replace(/\.$/, "");
+}
+
+/** `--to` of `--to <formats>`, `--version` of `-V, --version`. */
+function longFlag(flags: string): string {
+  return /--[^\s,]+/.exec(flags)?.[0] ?? flags;
+}
+
+/** ` (did you mean "--format"?)` for a misspelt long option: the command's own options and those above it. */
+function optionHint(flag: string, command: Command): string {
+  const match = /^--([^=]+)/.exec(flag);
+  if (match === null) return "";
+  const names: string[] = [];
+  for (let at: Command | null = command; at !== null; at = at.parent) {
+    for (const option of at.createHelp().visibleOptions(at)) if (option.long !== undefined) names.push(option.long.slice(2));
+  }
+  // compared without the dashes, which every candidate shares: they would widen the allowed distance
+  const near = didYouMean(match[1] ?? "", names);
+  return near.replace(/"([^"]+)"/, '"--$1"');
+}
+
+/** `--rounding: unknown value "up"; accepted: nearest-even, ...` for a value outside an option's choices. */
+function invalidChoice(text: string, command: Command): string | undefined {
+  const match = /^option '([^']*)' argument '([^']*)' is invalid/.exec(text);
+  if (match === null) return undefined;
+  const [, flags = "", value = ""] = match;
+  const choices = command.options.find((option) => option.flags === flags)?.argChoices;
+  if (choices === undefined) return undefined;
+  return `${longFlag(flags)}: unknown value ${JSON.stringify(value)}${didYouMean(value, choices)}; accepted: ${choices.join(", ")}`;
 }
 
 const VERSION = "0.1.0";

@@ -12,7 +12,8 @@ describe("headroom (the built binary)", () => {
   it("rejects an unknown command with exit code 2 and no stack trace", () => {
     const run = runCli(["no-such-command"]);
     expect(run.status).toBe(2);
-    expect(run.stderr).toContain("error:");
+    expect(run.stderr).toBe('headroom: unknown command "no-such-command"; see headroom --help\n');
+    expect(run.stdout).toBe("");
     expect(run.stderr).not.toMatch(/\n\s+at /);
   });
 });
