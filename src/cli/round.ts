@@ -7,6 +7,8 @@ import {
   type RoundingDescription,
   type RoundingMode,
 } from "../formats/index.js";
+import { formatValue } from "../report/number.js";
+import { STORAGE_FORMATS } from "./commands/round.js";
 import { UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
 
@@ -48,20 +50,22 @@ function seededUniform(seed: number): () => number {
   return () => source.next();
 }
 
-/** A number for the text table: shortest round-trip form, with the sign of zero kept. */
+/** A number for the text table: shortest round-trip form (exponents written 1e38, as in the error columns), with the sign of zero kept. */
 function show(value: number): string {
   if (Object.is(value, -0)) return "-0";
   if (Number.isNaN(value)) return "NaN";
   if (!Number.isFinite(value)) return value > 0 ? "inf" : "-inf";
-  return String(value);
+  return String(value).replace("e+", "e");
 }
 
-/** An error for the text table: four significant digits. */
+/**
+ * An error for the text table, written as the other tables write numbers (formatValue: plain from 1e-4 up to 1e6,
+ * else 2.441e-5) but with 4 significant digits where they use 3: an error is read against the format's unit
+ * roundoff (2^-11 = 0.0004883 in binary16), and with 3 digits an error of 0.0004878 would print as equal to it.
+ */
 function showError(value: number): string {
   if (Number.isNaN(value)) return "-";
-  if (!Number.isFinite(value)) return "inf";
-  if (value === 0) return "0";
-  return value.toPrecision(4).replace(/\.?0+(e|$)/, "$1");
+  return formatValue(value, 4);
 }
 
 /** A number for JSON: finite numbers as numbers; ±Infinity and NaN as strings ("Infinity", "-Infinity", "NaN"); −0 as 0. */
@@ -103,7 +107,8 @@ function jsonRow(input: string, d: RoundingDescription): string {
 }
 
 interface RoundCommandOptions {
-  to: string;
+  /** absent: every storage format */
+  to?: string;
   rounding: RoundingMode;
   overflow?: OverflowMode;
   flushSubnormals?: boolean;
@@ -162,13 +167,13 @@ async function* stdinLines(): AsyncGenerator<string> {
   for await (const line of lines) yield line;
 }
 
-/** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
+/** `headroom round VALUE... [--to FORMAT[,FORMAT...]]`: each value rounded into each format (each storage format by default). */
 export async function runRound(values: string[], options: RoundCommandOptions): Promise<void> {
   const unknown = values.find((text) => /^--?[a-z]/i.test(text) && !SPECIAL.test(text));
   if (unknown !== undefined) {
     throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
   }
-  const formats = parseFormatList("--to", options.to);
+  const formats = options.to === undefined ? STORAGE_FORMATS : parseFormatList("--to", options.to);
   const roundOptions: RoundOptions = {
     mode: options.rounding,
     ...(options.overflow !== undefined ? { overflow: options.overflow } : {}),

@@ -1,3 +1,4 @@
+import { f16round } from "@petamoriken/float16";
 import { describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 
@@ -113,6 +114,100 @@ describe("headroom round (the built binary)", () => {
     expect(runCli(["round", "1", "abc", "--to", "binary16"]).stdout).toBe("");
     // an empty stdin prints no header either
     expect(runCli(["round", "-", "--to", "binary16"], { input: "" }).stdout).toBe("");
+  });
+});
+
+/** The binary32 bit pattern of a number already in binary32 (IEEE 754-2019 §3.4 layout). */
+function binary32Bits(value: number): number {
+  const view = new DataView(new ArrayBuffer(4));
+  view.setFloat32(0, value);
+  return view.getUint32(0);
+}
+
+/** The binary32 value of a bit pattern. */
+function binary32Value(bits: number): number {
+  const view = new DataView(new ArrayBuffer(4));
+  view.setUint32(0, bits >>> 0);
+  return view.getFloat32(0);
+}
+
+/**
+ * A normal OCP 8-bit value from its code: (-1)^S · 2^(E − bias) · (1 + M / 2^m) (OCP 8-bit floating point
+ * specification rev. 1.0, §5: E4M3 has bias 7 and 3 mantissa bits, E5M2 bias 15 and 2).
+ */
+function ocpNormal(code: number, mantissaBits: number, bias: number): number {
+  const exponent = (code & 0x7f) >> mantissaBits;
+  const mantissa = code & ((1 << mantissaBits) - 1);
+  return (code & 0x80 ? -1 : 1) * 2 ** (exponent - bias) * (1 + mantissa / 2 ** mantissaBits);
+}
+
+describe("headroom round without --to: every storage format", () => {
+  // one run for the checks below, made by the first that asks
+  let run: ReturnType<typeof runCli> | undefined;
+  const ran = () => (run ??= runCli(["round", "0.1", "--json"]));
+  const byFormat = {
+    get(format: string): Row | undefined {
+      const { stdout } = ran();
+      return stdout === "" ? undefined : rows(stdout).find((r) => r.format === format);
+    },
+  };
+
+  it("one row per storage format, in the order `headroom formats` lists them (not tf32, never stored; not binary64, the source)", () => {
+    expect(ran().stderr).toBe("");
+    expect(ran().status).toBe(0);
+    expect(rows(ran().stdout).map((r) => r.format)).toEqual(["binary16", "bfloat16", "binary32", "e5m2", "e4m3"]);
+  });
+
+  it("binary16 as @petamoriken/float16's f16round, binary32 as Math.fround (ECMA-262 §21.3.2.17)", () => {
+    expect(byFormat.get("binary16")?.rounded).toBe(f16round(0.1));
+    expect(byFormat.get("binary32")?.rounded).toBe(Math.fround(0.1));
+    expect(byFormat.get("binary32")?.bits).toBe(`0x${binary32Bits(Math.fround(0.1)).toString(16)}`);
+  });
+
+  it("bfloat16: Math.fround's bits rounded to their upper 16 by nearest-even (bfloat16 is binary32 with 16 fraction bits dropped)", () => {
+    const bits = binary32Bits(Math.fround(0.1));
+    const low = bits & 0xffff;
+    // the dropped half is far from the tie 0x8000, so rounding once from binary64 and twice through binary32 agree
+    expect(Math.abs(low - 0x8000)).toBeGreaterThan(0x100);
+    const upper = (bits >>> 16) + (low > 0x8000 || (low === 0x8000 && (bits >>> 16) % 2 === 1) ? 1 : 0);
+    expect(byFormat.get("bfloat16")?.rounded).toBe(binary32Value(upper << 16));
+    expect(byFormat.get("bfloat16")?.rounded).toBe(0.10009765625);
+    expect(byFormat.get("bfloat16")?.bits).toBe(`0x${upper.toString(16)}`);
+  });
+
+  it("e5m2 and e4m3: the nearest of the OCP 8-bit grid around 0.1 (OCP 8-bit floating point specification rev. 1.0)", () => {
+    // 0.1 lies in the binade [2^-4, 2^-3): the grid points there are 2^-4 · (1 + k / 2^m)
+    for (const [format, mantissaBits, bias] of [["e5m2", 2, 15], ["e4m3", 3, 7]] as const) {
+      const step = 2 ** -4 / 2 ** mantissaBits;
+      const below = Math.floor(0.1 / step) * step;
+      const nearest = 0.1 - below < below + step - 0.1 ? below : below + step;
+      const row = byFormat.get(format);
+      expect(row?.rounded, format).toBe(nearest);
+      expect(ocpNormal(Number(row?.bits), mantissaBits, bias), format).toBe(nearest);
+    }
+    expect(byFormat.get("e5m2")?.rounded).toBe(0.09375);
+    expect(byFormat.get("e4m3")?.rounded).toBe(0.1015625);
+  });
+
+  it("the table: the same five rows, errors to 4 significant digits written as the other tables write numbers (no e+)", () => {
+    const text = runCli(["round", "0.1", "6e4", "--to", "binary16,bfloat16,binary32,e5m2,e4m3"]);
+    expect(text.status).toBe(0);
+    const lines = text.stdout.trimEnd().split("\n");
+    expect(lines).toHaveLength(11);
+    expect(lines.slice(1, 6).map((line) => line.trim().split(/\s+/)[1])).toEqual(["binary16", "bfloat16", "binary32", "e5m2", "e4m3"]);
+    // binary16: |0.1 − f16round(0.1)| = 2.44140625…e-5 (@petamoriken/float16), 4 significant digits
+    expect(lines[1]).toMatch(/\s2\.441e-5\s+0\.0002441$/);
+    // 6e4 in e4m3 saturates to 448 (OCP E4M3 largest finite): the error 59552 is a whole number and printed whole
+    expect(lines[10]).toMatch(/^\s*6e4\s+e4m3\s+448\s+0x7e\s+saturated\s+59552\s+0\.9925$/);
+    // and without --to, the same table
+    expect(runCli(["round", "0.1", "6e4"]).stdout).toBe(text.stdout);
+    for (const line of lines.slice(1)) {
+      const errors = line.trim().split(/\s+/).slice(-2);
+      for (const cell of errors) {
+        expect(cell, line).not.toMatch(/e\+/);
+        if (/^[\d.]+(e-?\d+)?$/.test(cell) && !/^\d+$/.test(cell)) expect(cell.replace(/e.*$/, "").replace(/^[0.]+/, "").replace(".", "").length, line).toBeLessThanOrEqual(4);
+      }
+    }
   });
 });
 

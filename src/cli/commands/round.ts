@@ -1,20 +1,31 @@
 import { Option } from "commander";
-import { OVERFLOW_MODES } from "../../formats/model.js";
+import { FORMATS, OVERFLOW_MODES, type Format } from "../../formats/model.js";
 import { FORMAT_NAMES } from "../../formats/names.js";
 import { ROUNDING_MODES } from "../../formats/round.js";
 import type { RegisterCommand } from "../commands.js";
 import { lazyAction } from "./define.js";
 
-/** `headroom round VALUE... --to FORMAT[,FORMAT...]`: each value rounded into each format. */
+/**
+ * What `round` rounds into without --to: the formats values are stored in, in FORMAT_NAMES order. Not tf32 (a compute
+ * precision of matrix units, never stored) nor binary64 (values are read as binary64: rounding into it changes nothing).
+ */
+export const STORAGE_FORMATS: readonly Format[] = FORMAT_NAMES.map((name) => FORMATS[name]).filter(
+  (format) => !format.computeOnly && format.name !== "binary64",
+);
+
+/** `headroom round VALUE... [--to FORMAT[,FORMAT...]]`: each value rounded into each format (each storage format by default). */
 export const register: RegisterCommand = (program) => {
   program
     .command("round")
     .description(
       "Round values into formats (directly from binary64, one rounding) and show the result, its bit pattern, " +
-        "its class (zero, subnormal, normal, saturated, infinite, nan) and the rounding error",
+        "its class (zero, subnormal, normal, saturated, infinite, nan) and the rounding error (4 significant digits)",
     )
     .argument("<values...>", "decimal numbers, inf/nan, or 0x + 16 hex digits (binary64 bits); - reads one value per line from stdin")
-    .requiredOption("--to <formats>", `target formats, comma-separated: ${FORMAT_NAMES.join(", ")}`)
+    .option(
+      "--to <formats>",
+      `target formats, comma-separated: ${FORMAT_NAMES.join(", ")}; default: every storage format (${STORAGE_FORMATS.map((f) => f.name).join(", ")})`,
+    )
     .addOption(new Option("--rounding <mode>", "how to round").choices(ROUNDING_MODES).default("nearest-even"))
     .addOption(
       new Option("--overflow <mode>", "past the largest finite value: clamp to it, or give infinity (NaN for e4m3); default: saturate for e4m3, infinity for the others")
