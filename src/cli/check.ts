@@ -2,14 +2,13 @@ import { check, CheckInputError, loadSpecMeasurements, measuredIssues } from "..
 import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
-import { colorEnabled, createStyle } from "../report/style.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
 import { formatSpecIssue, type SpecIssue } from "../spec/index.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
-import { textWidth } from "./terminal.js";
+import { stdoutStyle, textWidth } from "./terminal.js";
 
 /** Options shared by `check` and `explain`. */
 export interface JudgeFlags {
@@ -92,7 +91,7 @@ export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
           : (variant ? `variant ${variant}\n\n` : "") +
             renderCheckText(result, {
               all: flags.all ?? false,
-              style: createStyle(colorEnabled(process.stdout, process.env)),
+              style: stdoutStyle(),
               width: textWidth(),
             }),
     );

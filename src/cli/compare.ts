@@ -1,11 +1,10 @@
 import { CheckInputError } from "../check.js";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
-import { colorEnabled, createStyle } from "../report/style.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
-import { textWidth } from "./terminal.js";
+import { stdoutStyle, textWidth } from "./terminal.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
 export async function runCompare(path: string, flags: { onlySpecPlans?: boolean; json?: boolean }): Promise<void> {
@@ -26,7 +25,7 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
     flags.json
       ? renderCompareJson(comparison)
       : renderCompareText(comparison, {
-          style: createStyle(colorEnabled(process.stdout, process.env)),
+          style: stdoutStyle(),
           width: textWidth(),
         }),
   );

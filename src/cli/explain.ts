@@ -1,9 +1,8 @@
 import { renderExplainText } from "../report/check-explain.js";
-import { colorEnabled, createStyle } from "../report/style.js";
 import { findTensor } from "../risk/index.js";
 import { loadAndCheck, type JudgeFlags } from "./check.js";
 import { UserError } from "./errors.js";
-import { textWidth } from "./terminal.js";
+import { stdoutStyle, textWidth } from "./terminal.js";
 
 /** `headroom explain SPEC TENSOR`: the ledger of one tensor, factor by factor, and its risk. */
 export async function runExplain(path: string, words: string[], flags: JudgeFlags & { json?: boolean }): Promise<void> {
@@ -26,7 +25,7 @@ export async function runExplain(path: string, words: string[], flags: JudgeFlag
   }
   process.stdout.write(
     renderExplainText(result, found.tensor, {
-      style: createStyle(colorEnabled(process.stdout, process.env)),
+      style: stdoutStyle(),
       width: textWidth(),
     }),
   );

@@ -2,8 +2,8 @@ import { stat } from "node:fs/promises";
 import type { OverflowMode } from "../formats/index.js";
 import { castTarget, expandPaths, scanExitCode, scanFiles, type ScanIssue, type ScanResult } from "../measure/index.js";
 import { renderScanCsv, renderScanJson, renderScanTable } from "../report/scan.js";
-import { colorEnabled, createStyle } from "../report/style.js";
 import { raiseExitCode, UserError } from "./errors.js";
+import { stdoutStyle } from "./terminal.js";
 import { parseFormatList } from "./lists.js";
 import { createProgress } from "./progress.js";
 
@@ -71,7 +71,7 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   const all = options.all === true;
   if (options.json) process.stdout.write(renderScanJson(result, { all }));
   else if (options.csv) process.stdout.write(renderScanCsv(result, { all }));
-  else process.stdout.write(renderScanTable(result, { all, style: createStyle(colorEnabled(process.stdout, process.env)) }));
+  else process.stdout.write(renderScanTable(result, { all, style: stdoutStyle() }));
   for (const file of result.files) for (const issue of file.issues) process.stderr.write(`headroom: ${issueLine(issue)}\n`);
   raiseExitCode(scanExitCode(result));
 }
