@@ -2,6 +2,7 @@ import { Command, CommanderError } from "commander";
 import { didYouMean } from "../spec/issues.js";
 import { UserError, EXIT, takeExitCode } from "./errors.js";
 import { commands } from "./commands.js";
+import { commandPath, unknownOptionMessage } from "./commands/define.js";
 
 /**
  * Build the commander program with every command registered. The parser's own errors (an unknown option or
@@ -40,14 +41,11 @@ function parserMessage(error: CommanderError, command: Command, program: Command
   const text = error.message.replace(/^error: /, "");
   // commander quotes the name it refuses in single quotes: 'chek', '--formt', '--to <formats>'
   const quoted = [...text.matchAll(/'([^']*)'/g)].map((match) => match[1] ?? "");
-  const path = command === program ? program.name() : `${program.name()} ${command.name()}`;
+  const path = commandPath(command);
   const usage = `usage: ${path} ${command.usage()}`;
   switch (error.code) {
-    case "commander.unknownOption": {
-      const flag = quoted[0] ?? "";
-      const hint = optionHint(flag, command);
-      return `unknown option ${JSON.stringify(flag)}${hint === "" ? `; see ${path} --help` : hint}`;
-    }
+    case "commander.unknownOption":
+      return unknownOptionMessage(quoted[0] ?? "", command);
     case "commander.unknownCommand": {
       const name = quoted[0] ?? "";
       const names = program.commands.map((c) => c.name()).concat("help");
@@ -78,19 +76,6 @@ function parserMessage(error: CommanderError, command: Command, program: Command
 /** `--to` of `--to <formats>`, `--version` of `-V, --version`. */
 function longFlag(flags: string): string {
   return /--[^\s,]+/.exec(flags)?.[0] ?? flags;
-}
-
-/** ` (did you mean "--format"?)` for a misspelt long option: the command's own options and those above it. */
-function optionHint(flag: string, command: Command): string {
-  const match = /^--([^=]+)/.exec(flag);
-  if (match === null) return "";
-  const names: string[] = [];
-  for (let at: Command | null = command; at !== null; at = at.parent) {
-    for (const option of at.createHelp().visibleOptions(at)) if (option.long !== undefined) names.push(option.long.slice(2));
-  }
-  // compared without the dashes, which every candidate shares: they would widen the allowed distance
-  const near = didYouMean(match[1] ?? "", names);
-  return near.replace(/"([^"]+)"/, '"--$1"');
 }
 
 /** `--rounding: unknown value "up"; accepted: nearest-even, ...` for a value outside an option's choices. */

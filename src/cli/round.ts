@@ -8,7 +8,9 @@ import {
   type RoundingMode,
 } from "../formats/index.js";
 import { formatValue } from "../report/number.js";
+import type { Command } from "commander";
 import { STORAGE_FORMATS } from "./commands/round.js";
+import { unknownOptionMessage } from "./commands/define.js";
 import { UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
 
@@ -168,10 +170,10 @@ async function* stdinLines(): AsyncGenerator<string> {
 }
 
 /** `headroom round VALUE... [--to FORMAT[,FORMAT...]]`: each value rounded into each format (each storage format by default). */
-export async function runRound(values: string[], options: RoundCommandOptions): Promise<void> {
+export async function runRound(values: string[], options: RoundCommandOptions, command: Command): Promise<void> {
   const unknown = values.find((text) => /^--?[a-z]/i.test(text) && !SPECIAL.test(text));
   if (unknown !== undefined) {
-    throw new UserError(`unknown option "${unknown}"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)`);
+    throw new UserError(unknownOptionMessage(unknown, command, " (values may be decimal numbers, inf, nan or 0x patterns)"));
   }
   const formats = options.to === undefined ? STORAGE_FORMATS : parseFormatList("--to", options.to);
   const roundOptions: RoundOptions = {

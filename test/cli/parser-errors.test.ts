@@ -17,6 +17,9 @@ const CASES: [string[], string][] = [
   [["formats", "--jsn"], 'headroom: unknown option "--jsn" (did you mean "--json"?)'],
   [["check", SPEC, "--colour-me"], 'headroom: unknown option "--colour-me"; see headroom check --help'],
   [["--formt"], 'headroom: unknown option "--formt"; see headroom --help'],
+  // round reads unknown options itself (its values may start with "-"), in the same words
+  [["round", "1", "--jsn"], 'headroom: unknown option "--jsn" (did you mean "--json"?)'],
+  [["round", "1", "--xyz"], 'headroom: unknown option "--xyz"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)'],
   // "chek" is "check" less one letter
   [["chek", SPEC], 'headroom: unknown command "chek" (did you mean "check"?)'],
   [["xyzzy"], 'headroom: unknown command "xyzzy"; see headroom --help'],

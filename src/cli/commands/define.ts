@@ -1,5 +1,6 @@
 /** The parts several command definitions share, so each file of src/cli/commands/ says only what is its own. */
 import { Option, type Command } from "commander";
+import { didYouMean } from "../../spec/issues.js";
 
 /**
  * The action of a command: imports the command's run (src/cli/<command>.ts) only when the command runs, so `--help`
@@ -29,4 +30,25 @@ export function varyOption(): Option {
   return repeatable(
     new Option("--vary <KEY=V1,V2,...>", "check each value of a key in the spec (e.g. training.batch=8,16); repeat for the cross product"),
   );
+}
+
+/** How a user types the command: `headroom`, `headroom check`. */
+export function commandPath(command: Command): string {
+  return command.parent === null ? command.name() : `${commandPath(command.parent)} ${command.name()}`;
+}
+
+/**
+ * `unknown option "--formt" (did you mean "--format"?)`, or `unknown option "--x"; see headroom check --help` when no
+ * long option of the command (or of those above it) is close, followed by `note`: the parser's message and round's
+ * (which reads unknown options itself, as its values may start with "-") alike.
+ */
+export function unknownOptionMessage(flag: string, command: Command, note = ""): string {
+  const names: string[] = [];
+  for (let at: Command | null = command; at !== null; at = at.parent) {
+    for (const option of at.createHelp().visibleOptions(at)) if (option.long !== undefined) names.push(option.long.slice(2));
+  }
+  // compared without the dashes every candidate shares (they would widen the distance allowed) and without a value
+  const word = /^--([^=]+)/.exec(flag)?.[1];
+  const hint = word === undefined ? "" : didYouMean(word, names).replace(/"([^"]+)"/, '"--$1"');
+  return `unknown option ${JSON.stringify(flag)}${hint === "" ? `; see ${commandPath(command)} --help${note}` : hint}`;
 }
