@@ -4,6 +4,7 @@
  */
 import { check } from "./check.js";
 import { getFormat } from "./formats/index.js";
+import type { Measurements } from "./measure/index.js";
 import type { CheckResult, Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import type { OptimizerCheck } from "./scale/optimizer.js";
@@ -88,12 +89,24 @@ export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckRe
 
 const ORDER: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
 
+/** Options of {@link comparePlans}. */
+export interface CompareOptions {
+  /** the plans to evaluate (default: the standard plans, and the spec's own) */
+  plans?: readonly PrecisionPlan[];
+  steps?: number;
+  /** seed of the dynamic-scale simulation (default 1) */
+  seed?: number;
+  /** the spec's measured data (`loadSpecMeasurements`), which every plan is judged with, as `check` judges one */
+  measurements?: Measurements;
+}
+
 /**
  * Evaluate the standard plans (or the spec's own, when `own` is set) and rank them: plans that train safely
- * first, the cheapest of those first; then the rest, least broken first.
+ * first, the cheapest of those first; then the rest, least broken first. With `measurements`, every plan is judged
+ * with the spec's measured weights and statistics.
  * @example comparePlans(spec).outcomes[0].plan.name // => "bfloat16 with master copy"
  */
-export function comparePlans(spec: NetworkSpec, options: { plans?: readonly PrecisionPlan[]; steps?: number; seed?: number } = {}): PlanComparison {
+export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): PlanComparison {
   const own = [spec.precision, ...spec.plans];
   // a standard plan that one of the spec's own plans repeats (same formats and options) is listed once, by the spec's name
   const plans =
@@ -103,7 +116,7 @@ export function comparePlans(spec: NetworkSpec, options: { plans?: readonly Prec
     const planned: NetworkSpec = { ...spec, precision: plan };
     // one check per plan: it predicts, answers the loss scale (judging at its pick when the plan gives none) and
     // checks the optimizer; its verdict folds all three in
-    const result = check(planned, options.seed === undefined ? {} : { seed: options.seed });
+    const result = check(planned, options.seed === undefined ? {} : { seed: options.seed }, options.measurements);
     const answer = result.lossScaleAnswer;
     const optimizer = result.optimizer;
     const lossScale = result.lossScale.origin === "none" ? null : result.lossScale.value;

@@ -1,6 +1,7 @@
-import { CheckInputError } from "../check.js";
+import { CheckInputError, loadSpecMeasurements, measuredIssues } from "../check.js";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
+import { formatSpecIssue } from "../spec/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
@@ -12,9 +13,15 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   if (loaded === undefined) return;
   const spec = loaded.spec;
   const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
+  // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does
+  const measurements = await loadSpecMeasurements(spec);
+  // (the lines cli/check.ts's reportMeasuredIssues writes; that module and its renderers are not loaded for compare)
+  const problems = measuredIssues(measurements, loaded.locate);
+  for (const issue of problems) process.stderr.write(formatSpecIssue(issue) + "\n");
+  if (problems.length > 0) raiseExitCode(EXIT.inputError);
   let comparison;
   try {
-    comparison = comparePlans(spec, plans ? { plans } : {});
+    comparison = comparePlans(spec, { ...(plans ? { plans } : {}), ...(measurements ? { measurements } : {}) });
   } catch (error) {
     // the network cannot be built: every plan's check says so, the first one first
     if (error instanceof CheckInputError) return reportGraphIssues(loaded, error.issues);
