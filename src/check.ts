@@ -6,7 +6,7 @@ import { buildGraph, type Graph, type GraphIssue } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
-import { applyMeasurements, calibrateGraph, loadMeasurements, type Measurements } from "./measure/index.js";
+import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements } from "./measure/index.js";
 import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
@@ -254,9 +254,28 @@ export async function loadSpecMeasurements(spec: NetworkSpec, cache?: Map<string
   return loading;
 }
 
-/** The problems of a spec's measured data as issues positioned at its `measured` section. */
-export function measuredIssues(measurements: Measurements | undefined, locate: (path: SpecPath) => SpecPosition): SpecIssue[] {
-  return (measurements?.problems ?? []).map((message) => ({ ...locate(["measured"]), path: "measured", message }));
+/**
+ * The problems of a spec's measured data as issues positioned at its `measured` section: those of reading it, and
+ * given the spec, the measured weights its network cannot use ({@link measuredWeightProblems}).
+ */
+export function measuredIssues(measurements: Measurements | undefined, locate: (path: SpecPath) => SpecPosition, spec?: NetworkSpec): SpecIssue[] {
+  const problems = measurements?.problems ?? [];
+  const all = spec === undefined ? problems : [...problems, ...measuredWeightProblems(spec, measurements)];
+  return all.map((message) => ({ ...locate(["measured"]), path: "measured", message }));
+}
+
+/**
+ * The measured weights that a weight of the spec's network matched by name but cannot use, as they hold another
+ * number of elements, one line each (file, tensor, both sizes): the check leaves those weights at the spec's
+ * initialisation. They depend on the network, so each variant of a spec has its own. None when the network cannot
+ * be built (the check says why).
+ */
+export function measuredWeightProblems(spec: NetworkSpec, measurements: Measurements | undefined): string[] {
+  const weights = measurements?.weights;
+  if (weights === undefined || weights.tensors.length === 0) return [];
+  const built = buildGraph(spec);
+  if (!built.ok) return [];
+  return weightMismatchProblems(calibrateGraph(built.graph, weights, spec.measured?.names ?? {}));
 }
 
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
@@ -282,8 +301,8 @@ export async function checkFile(path: string, options: CheckAnswerOptions = {}):
   const loaded = await loadSpec(path);
   if (!loaded.ok) return { ok: false, issues: loaded.issues };
   const measurements = await loadSpecMeasurements(loaded.spec);
-  // unreadable measured data leaves those profiles predicted; say so at the spec's `measured` key
-  const measuredWarnings = measuredIssues(measurements, loaded.locate);
+  // unreadable or unusable measured data leaves those profiles predicted; say so at the spec's `measured` key
+  const measuredWarnings = measuredIssues(measurements, loaded.locate, loaded.spec);
   try {
     return { ok: true, result: check(loaded.spec, options, measurements), warnings: [...loaded.warnings, ...measuredWarnings] };
   } catch (error) {

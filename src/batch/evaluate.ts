@@ -15,21 +15,21 @@ export interface SpecTask {
   variant: Variant | null;
 }
 
-/** What evaluating a task gives: a summary, or the error that stopped it. */
-export type TaskResult = { status: "ok"; summary: SpecSummary } | { status: "error"; error: RowError };
+/** What evaluating a task gives: a summary (or what the judge gave), or the error that stopped it. */
+export type TaskResult<T = SpecSummary> = { status: "ok"; summary: T } | { status: "error"; error: RowError };
 
-/** How a task gets its pieces. */
-export interface EvaluateHooks {
+/** How a task gets its pieces; `T` is what the judge gives (a batch row's summary). */
+export interface EvaluateHooks<T = SpecSummary> {
   /** the text of a spec file; a thrown error with a `code` (ENOENT…) becomes an input error */
   readText(file: string): Promise<string> | string;
   /** the spec's JSON Schema (or a function giving it, called only when a task has a variant), so --vary can add keys the file leaves to their defaults */
   schema?: Record<string, unknown> | (() => Record<string, unknown>);
   /** judge a valid spec; `locate` gives positions in the user's file (lines a variant added mapped back) */
-  judge(spec: NetworkSpec, locate: (path: SpecPath) => SpecPosition): Promise<SpecSummary> | SpecSummary;
+  judge(spec: NetworkSpec, locate: (path: SpecPath) => SpecPosition): Promise<T> | T;
 }
 
 /** How {@link evaluateText} gets its pieces: those of a task but the reading, and optionally how variants apply. */
-export interface TextHooks extends Omit<EvaluateHooks, "readText"> {
+export interface TextHooks<T = SpecSummary> extends Omit<EvaluateHooks<T>, "readText"> {
   /** the variant applied to the text (default: varyText with `schema`); `textVarier` parses the text once for many variants */
   vary?: (variant: Variant) => VariedText;
 }
@@ -117,7 +117,7 @@ export async function readSpecText(file: string, readText: EvaluateHooks["readTe
  * Evaluate a spec file's text (from {@link readSpecText}) with a variant applied in memory: `check --vary` reads
  * the file once and evaluates each variant from its text. Never throws.
  */
-export async function evaluateText(file: string, original: string, variant: Variant | null, hooks: TextHooks): Promise<TaskResult> {
+export async function evaluateText<T = SpecSummary>(file: string, original: string, variant: Variant | null, hooks: TextHooks<T>): Promise<TaskResult<T>> {
   let text = original;
   let originalLine = (line: number): number => line;
   if (variant) {

@@ -4,7 +4,7 @@
  */
 import { readFileSync } from "node:fs";
 import { workerData } from "node:worker_threads";
-import { check, loadSpecMeasurements } from "../check.js";
+import { check, loadSpecMeasurements, measuredWeightProblems } from "../check.js";
 import type { Measurements } from "../measure/index.js";
 import type { CheckOptions } from "../risk/index.js";
 import { specJsonSchema, type SpecPath } from "../spec/index.js";
@@ -26,7 +26,7 @@ let schema: Record<string, unknown> | undefined = data.schema;
 // otherwise built on the first task with a variant: most batches have none, and building it loads zod (~0.2 s)
 const lazySchema = (): Record<string, unknown> => (schema ??= specJsonSchema());
 
-/** Unreadable measured data: an input error at the spec's `measured` section, as `headroom check` makes it (exit code 2). */
+/** Unreadable or unusable measured data: an input error at the spec's `measured` section, as `headroom check` makes it (exit code 2). */
 class MeasuredDataError extends RangeError {
   readonly issues: { path: SpecPath; message: string }[];
   constructor(problems: readonly string[]) {
@@ -49,7 +49,9 @@ serveTasks((task: Parameters<typeof evaluateTask>[0]) =>
     judge: async (spec) => {
       if (measuredCache.size >= MEASURED_KEPT) measuredCache.clear();
       const measurements = await loadSpecMeasurements(spec, measuredCache);
-      if (measurements !== undefined && measurements.problems.length > 0) throw new MeasuredDataError(measurements.problems);
+      // a weight of this spec's network (a variant may change a width) that its matched tensor does not fit counts too
+      const problems = measurements === undefined ? [] : [...measurements.problems, ...measuredWeightProblems(spec, measurements)];
+      if (problems.length > 0) throw new MeasuredDataError(problems);
       return summarizeCheck(check(spec, options, measurements));
     },
   }),

@@ -1,10 +1,9 @@
 import { readFile } from "node:fs/promises";
 import { evaluateText, readSpecText } from "../batch/evaluate.js";
 import { textVarier } from "../batch/vary.js";
-import { check, loadSpecMeasurements, measuredIssues, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import { check, loadSpecMeasurements, measuredIssues, measuredWeightProblems, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import type { Measurements } from "../measure/index.js";
-import { summarizeCheck } from "../report/summary.js";
-import { specJsonSchema } from "../spec/index.js";
+import { formatSpecIssue, specJsonSchema } from "../spec/index.js";
 import { judgeOptions, reportMeasuredIssues, type JudgeFlags } from "./check.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 import { variantsFromOptions } from "./shared.js";
@@ -13,8 +12,8 @@ import { variantsFromOptions } from "./shared.js";
  * `check --vary`: check every variant of one spec. The file is read once and each variant applied to its text in
  * memory. A variant whose spec is invalid (or whose key does not exist) is reported on stderr with its position in
  * the file and exit code 2; the others are checked with the spec's measured data as a plain check would be, the data
- * read once for all variants that share the `measured` section (its problems reported once, exit code 2). Resolves to
- * the checked variants in order.
+ * read once for all variants that share the `measured` section (its problems reported once, exit code 2; a measured
+ * weight that a variant's network cannot use is reported for that variant). Resolves to the checked variants in order.
  */
 export async function checkVariants(
   path: string,
@@ -35,7 +34,7 @@ export async function checkVariants(
   const reported = new Set<Measurements>();
   const out: { variant: string; result: CheckAnswer }[] = [];
   for (const variant of variants) {
-    let result: CheckAnswer | undefined;
+    // the judge gives the check itself: a variant is rendered whole, so no batch summary is made of it
     const outcome = await evaluateText(path, text, variant, {
       vary,
       judge: async (spec, locate) => {
@@ -44,17 +43,19 @@ export async function checkVariants(
           reported.add(measurements);
           reportMeasuredIssues(measuredIssues(measurements, locate));
         }
-        result = check(spec, checkOptions, measurements);
-        return summarizeCheck(result);
+        // the weights this variant's network cannot use (a varied width), named by the variant
+        const unusable = measuredIssues({ problems: measuredWeightProblems(spec, measurements) }, locate);
+        for (const issue of unusable) process.stderr.write(`${formatSpecIssue(issue)} [${variant.name}]\n`);
+        if (unusable.length > 0) raiseExitCode(EXIT.inputError);
+        return check(spec, checkOptions, measurements);
       },
     });
-    if (outcome.status === "error" || result === undefined) {
-      const message = outcome.status === "error" ? outcome.error.message : `${path}: not checked`;
-      process.stderr.write(`${message} [${variant.name}]\n`);
-      raiseExitCode(outcome.status === "error" && outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
+    if (outcome.status === "error") {
+      process.stderr.write(`${outcome.error.message} [${variant.name}]\n`);
+      raiseExitCode(outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
       continue;
     }
-    out.push({ variant: variant.name, result });
+    out.push({ variant: variant.name, result: outcome.summary });
   }
   return out;
 }

@@ -45,7 +45,7 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   if (loaded === undefined) return undefined;
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const measurements = await loadSpecMeasurements(loaded.spec);
-  reportMeasuredIssues(measuredIssues(measurements, loaded.locate));
+  reportMeasuredIssues(measuredIssues(measurements, loaded.locate, loaded.spec));
   try {
     return check(loaded.spec, options, measurements);
   } catch (error) {

@@ -16,7 +16,7 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does
   const measurements = await loadSpecMeasurements(spec);
   // (the lines cli/check.ts's reportMeasuredIssues writes; that module and its renderers are not loaded for compare)
-  const problems = measuredIssues(measurements, loaded.locate);
+  const problems = measuredIssues(measurements, loaded.locate, spec);
   for (const issue of problems) process.stderr.write(formatSpecIssue(issue) + "\n");
   if (problems.length > 0) raiseExitCode(EXIT.inputError);
   let comparison;

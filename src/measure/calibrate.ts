@@ -60,19 +60,61 @@ export interface WeightMatch {
   note?: string;
 }
 
+/** A tensor that matched a weight by name but was not used for it. */
+export interface RejectedMatch {
+  file: string;
+  tensor: string;
+  /** `elements`: it holds another number of elements than the weight; `used`: another weight took it first */
+  reason: "elements" | "used";
+  /** the tensor's element count and shape */
+  elements: number;
+  shape: number[];
+  /** the weight's element count and shape */
+  weightElements: number;
+  weightShape: number[];
+  /** for `used`, the id of the weight that took it */
+  usedBy?: string;
+}
+
 /** The outcome of matching a graph to weight files. */
 export interface WeightCalibration {
   /** the graph with measured variances (and gain values) for matched weights */
   graph: Graph;
   matches: WeightMatch[];
-  /** graph weights no tensor matched: they keep the spec's initialisation */
-  unmatched: { layer: string; weight: string; id: string; tried: string[] }[];
+  /**
+   * graph weights left with the spec's initialisation: no tensor matched, or (`rejected`) the tensor that matched
+   * could not be used
+   */
+  unmatched: { layer: string; weight: string; id: string; tried: string[]; rejected?: RejectedMatch }[];
   /** tensors of the files that no weight used */
   unused: { file: string; tensor: string }[];
   /** reading problems and rejected matches (wrong element count, a tensor claimed twice) */
   issues: ScanIssue[];
   /** measured tensors by prediction tensor id, for marking the prediction */
   measured: Record<string, TensorMeasure>;
+}
+
+function sizes(tensor: TensorMeasure, weight: GraphWeight): Omit<RejectedMatch, "reason"> {
+  return { file: tensor.file, tensor: tensor.name, elements: tensor.elements, shape: tensor.shape, weightElements: weight.elements, weightShape: weight.shape };
+}
+
+/** `has 128 elements [8, 16] but fc1/weight needs 64 [4, 16]` */
+function elementsDetail(id: string, r: RejectedMatch): string {
+  return `has ${r.elements} elements [${r.shape.join(", ")}] but ${id} needs ${r.weightElements} [${r.weightShape.join(", ")}]`;
+}
+
+/**
+ * The weights whose matched tensor holds another number of elements (so it is not used), one line each, naming the
+ * file and the tensor: a problem of the measured data, for the check to report beside the reading problems. A tensor
+ * another weight took first is not one: tied weights share a tensor on purpose, and the notes say it.
+ */
+export function weightMismatchProblems(calibration: Pick<WeightCalibration, "unmatched">): string[] {
+  const out: string[] = [];
+  for (const u of calibration.unmatched) {
+    if (u.rejected?.reason !== "elements") continue;
+    out.push(`${u.rejected.file}: tensor ${JSON.stringify(u.rejected.tensor)} ${elementsDetail(u.id, u.rejected)}; not used, so ${u.id} keeps the spec's initialisation`);
+  }
+  return out;
 }
 
 /** The prediction id of a weight, following the engine's naming (`<layer>/weight`, `<layer>/weight:<name>`). */
@@ -107,7 +149,8 @@ const ALIASES: Readonly<Record<string, readonly string[]>> = {
 export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readonly<Record<string, string>> = {}): WeightCalibration {
   const byName = new Map<string, TensorMeasure[]>();
   for (const t of data.tensors) byName.set(t.name, [...(byName.get(t.name) ?? []), t]);
-  const used = new Set<TensorMeasure>();
+  // tensor → the weight id that took it
+  const used = new Map<TensorMeasure, string>();
   const matches: WeightMatch[] = [];
   const unmatched: WeightCalibration["unmatched"] = [];
   const issues: ScanIssue[] = [...data.issues];
@@ -152,24 +195,23 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
           }
         }
       }
-      if (tensor && used.has(tensor)) {
-        issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `already used for another weight; not used again for ${id}` });
+      let rejected: RejectedMatch | undefined;
+      const usedBy = tensor && used.get(tensor);
+      if (tensor && usedBy !== undefined) {
+        rejected = { ...sizes(tensor, w), reason: "used", usedBy };
+        issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `already used for ${usedBy}; not used again for ${id}` });
         tensor = undefined;
       }
       if (tensor && tensor.elements !== w.elements) {
-        issues.push({
-          file: tensor.file,
-          tensor: tensor.name,
-          byteOffset: 0,
-          message: `has ${tensor.elements} elements [${tensor.shape.join(", ")}] but ${id} needs ${w.elements} [${w.shape.join(", ")}]; not used`,
-        });
+        rejected = { ...sizes(tensor, w), reason: "elements" };
+        issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `${elementsDetail(id, rejected)}; not used` });
         tensor = undefined;
       }
       if (!tensor) {
-        unmatched.push({ layer: layer.name, weight: w.name, id, tried });
+        unmatched.push(rejected ? { layer: layer.name, weight: w.name, id, tried, rejected } : { layer: layer.name, weight: w.name, id, tried });
         return w;
       }
-      used.add(tensor);
+      used.set(tensor, id);
       measured[id] = tensor;
       const match: WeightMatch = { layer: layer.name, weight: w.name, id, file: tensor.file, tensor: tensor.name, rule, elements: tensor.elements, rms: tensor.rms };
       if (tensor.shape.join(",") !== w.shape.join(",")) {
@@ -298,6 +340,13 @@ function listed(names: readonly string[], limit = 8): string {
   return names.length > limit ? `${shown} and ${names.length - limit} more` : shown;
 }
 
+/** `fc1.weight has 128 elements [8, 16], it needs 64 [4, 16]`, or `fc1.weight is already used for fc0/weight` */
+function rejectedWords(r: RejectedMatch): string {
+  return r.reason === "used"
+    ? `${r.tensor} is already used for ${r.usedBy ?? "another weight"}`
+    : `${r.tensor} has ${r.elements} elements [${r.shape.join(", ")}], it needs ${r.weightElements} [${r.weightShape.join(", ")}]`;
+}
+
 /** Sentences for the check's assumptions: what was matched and measured, what stayed predicted. */
 function measurementNotes(
   calibration: Partial<WeightCalibration> | undefined,
@@ -307,17 +356,30 @@ function measurementNotes(
 ): string[] {
   const notes: string[] = [];
   if (calibration?.matches) {
+    const unmatched = calibration.unmatched ?? [];
+    const total = calibration.matches.length + unmatched.length;
     const files = new Set(calibration.matches.map((m) => m.file));
     notes.push(
       calibration.matches.length === 0
-        ? "No weight of the network matched a tensor of the weight files; every weight keeps the spec's initialisation."
-        : `Weights measured from ${listed([...files], 3)}: ${listed(calibration.matches.map((m) => `${m.id} ← ${m.tensor}${m.rule === "names" ? " (names)" : ""}`))}.`,
+        ? `No weight of the network is measured (0 of ${total} weights found a usable tensor in the weight files); every weight keeps the spec's initialisation.`
+        : `Weights measured from ${listed([...files], 3)} (${calibration.matches.length} of ${total} weight${total === 1 ? "" : "s"}): ${listed(calibration.matches.map((m) => `${m.id} ← ${m.tensor}${m.rule === "names" ? " (names)" : ""}`))}.`,
     );
-    if (calibration.unmatched && calibration.unmatched.length > 0) {
-      notes.push(`${calibration.unmatched.length} weight${calibration.unmatched.length === 1 ? " keeps" : "s keep"} the spec's initialisation (no tensor matched): ${listed(calibration.unmatched.map((u) => u.id))}.`);
+    const rejected = unmatched.filter((u) => u.rejected !== undefined);
+    if (rejected.length > 0) {
+      const one = rejected.length === 1;
+      notes.push(
+        `${rejected.length} weight${one ? " keeps" : "s keep"} the spec's initialisation because the tensor ${one ? "it" : "they"} matched cannot be used: ${listed(rejected.map((u) => `${u.id} (${rejectedWords(u.rejected!)})`))}.`,
+      );
     }
-    if (calibration.unused && calibration.unused.length > 0) {
-      notes.push(`${calibration.unused.length} tensor${calibration.unused.length === 1 ? " of the weight files is" : "s of the weight files are"} not used: ${listed(calibration.unused.map((u) => u.tensor))}.`);
+    const missing = unmatched.filter((u) => u.rejected === undefined);
+    if (missing.length > 0) {
+      notes.push(`${missing.length} weight${missing.length === 1 ? " keeps" : "s keep"} the spec's initialisation (no tensor matched): ${listed(missing.map((u) => u.id))}.`);
+    }
+    // a tensor rejected above is said there, not again
+    const explained = new Set(rejected.map((u) => `${u.rejected!.file}\0${u.rejected!.tensor}`));
+    const unused = (calibration.unused ?? []).filter((u) => !explained.has(`${u.file}\0${u.tensor}`));
+    if (unused.length > 0) {
+      notes.push(`${unused.length} tensor${unused.length === 1 ? " of the weight files is" : "s of the weight files are"} not used: ${listed(unused.map((u) => u.tensor))}.`);
     }
   }
   if (statistics.length > 0) {

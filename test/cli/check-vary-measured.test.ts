@@ -160,7 +160,9 @@ describe("check --vary with valid measured data", () => {
     const plain = runCli(["check", "--json", narrow]);
     const varied = runCli(["check", "--json", path, "--vary", "layers[0].width=4"]);
     expect(varied.status).toBe(plain.status);
-    expect(varied.stderr).toBe(plain.stderr);
+    // the same lines (the unusable fc1.weight, at the measured section), named by the variant and the file it varies
+    expect(plain.stderr).toMatch(/tensor "fc1\.weight" has 128 elements \[8, 16\] but fc1\/weight needs 64 \[4, 16\]/);
+    expect(varied.stderr).toBe(plain.stderr.replaceAll(narrow, path).replaceAll("\n", " [layers[0].width=4]\n"));
     const entry = (JSON.parse(varied.stdout) as { result: Result }[])[0]!;
     expect(numbers(entry.result)).toEqual(numbers(JSON.parse(plain.stdout) as Result));
     expect(entry.result.tensors.find((t) => t.id === "fc1/weight")?.source).toBe("predicted");

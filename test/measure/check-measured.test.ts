@@ -64,7 +64,7 @@ describe("check with measured data", () => {
     expect(byId["fc2/pre-activation"].source).toBe("measured");
     expect(byId["fc2/pre-activation"].start.rms).toBeCloseTo(0.25, 9);
     expect(byId["fc1/pre-activation"].source).toBe("predicted");
-    expect(result.assumptions.join(" ")).toMatch(/Weights measured from .*ckpt\.safetensors: fc1\/weight ← fc1\.weight/);
+    expect(result.assumptions.join(" ")).toMatch(/Weights measured from .*ckpt\.safetensors \(1 of 2 weights\): fc1\/weight ← fc1\.weight/);
     expect(result.assumptions.join(" ")).toMatch(/keeps the spec's initialisation \(no tensor matched\): fc2\/weight/);
     // the text output carries the same notes
     const text = runCli(["check", path]);
