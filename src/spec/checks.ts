@@ -426,11 +426,14 @@ function checkMeasuredNames(root: Record<string, unknown>, layerNames: Set<strin
   const names = record(record(root["measured"])?.["names"]);
   if (!names) return;
   for (const name of Object.keys(names)) {
-    if (!layerNames.has(name)) {
+    // `<layer>/<weight>` names one weight of the layer (src/measure/calibrate.ts matching rule)
+    const slash = name.indexOf("/");
+    const layer = layerNames.has(name) || slash < 0 ? name : name.slice(0, slash);
+    if (!layerNames.has(layer)) {
       found.warnings.push({
         path: ["measured", "names", name],
         atKey: true,
-        message: `no layer is named ${JSON.stringify(name)}${didYouMean(name, [...layerNames])}`,
+        message: `no layer is named ${JSON.stringify(layer)}${didYouMean(layer, [...layerNames])}`,
       });
     }
   }

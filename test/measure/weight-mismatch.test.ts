@@ -190,3 +190,15 @@ describe("a measured weight with another element count", () => {
     expect(run.stderr).toBe(plain.stderr);
   });
 });
+
+describe("measured.names keyed by <layer>/<weight>", () => {
+  // README, "Measured data in a check": `names["<layer>/<weight>"]` names a tensor exactly
+  it("loads without a warning when the layer exists, and warns about the layer when it does not", async () => {
+    const { parseSpec } = await import("../../src/spec/index.js");
+    const text = (key: string) => spec("ckpt.safetensors").replace("  weights: [ckpt.safetensors]\n", `  weights: [ckpt.safetensors]\n  names: { ${key}: fc1.weight }\n`);
+    const good = parseSpec(text("fc1/weight"), "good.yaml");
+    expect(good.ok && good.warnings).toEqual([]);
+    const typo = parseSpec(text("fcl/weight"), "typo.yaml");
+    expect(typo.ok && typo.warnings.map((w) => [w.path, w.message])).toEqual([['measured.names["fcl/weight"]', 'no layer is named "fcl" (did you mean "fc1"?)']]);
+  });
+});
