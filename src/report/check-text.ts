@@ -247,16 +247,26 @@ const HAZARD_WORDS: Readonly<Record<HazardCheck["kind"], string>> = {
 
 /** The hazards section: one line per evaluation that is not "fits" (every evaluation with `all`). */
 export function renderHazards(hazards: readonly HazardCheck[], all: boolean, width: number, style: Style = PLAIN): string {
-  let out = "";
+  const rows: { hazard: HazardCheck; evaluation: HazardCheck["evaluations"][number] }[] = [];
   for (const hazard of hazards) {
-    for (const evaluation of hazard.evaluations) {
-      if (!all && evaluation.verdict === "fits") continue;
-      const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
-      out += wrap(evaluation.sentence, width, head, "      ");
-    }
+    for (const evaluation of hazard.evaluations) if (all || evaluation.verdict !== "fits") rows.push({ hazard, evaluation });
+  }
+  // as the tensors: failing first (a stable sort keeps the network's order within a verdict), at most
+  // HAZARD_ROW_LIMIT without --all, so a deep network's repeated findings do not bury the rest
+  const shown = all ? rows : [...rows].sort((a, b) => Number(b.evaluation.verdict === "fails") - Number(a.evaluation.verdict === "fails")).slice(0, HAZARD_ROW_LIMIT);
+  let out = "";
+  for (const { hazard, evaluation } of shown) {
+    const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
+    out += wrap(evaluation.sentence, width, head, "      ");
+  }
+  if (shown.length < rows.length) {
+    out += style.role("muted", `  ${rows.length} operation checks at risk, the first ${shown.length} shown (failing first); --all lists every one.`) + "\n";
   }
   return out;
 }
+
+/** Operation-hazard lines shown without --all. */
+export const HAZARD_ROW_LIMIT = 12;
 
 /**
  * Render a check for the terminal.

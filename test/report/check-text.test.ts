@@ -1,7 +1,8 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { renderCheckText } from "../../src/report/check-text.js";
+import { HAZARD_ROW_LIMIT, renderCheckText, renderHazards } from "../../src/report/check-text.js";
+import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
@@ -109,5 +110,49 @@ describe("binary16 optimizer states: each problem is told once", () => {
     expect(findings("optimizer-second-moment").map((f: { kind: string; severity: string; format: string }) => [f.kind, f.severity, f.format])).toEqual([
       ["second-moment-flushed", "fails", "binary16"],
     ]);
+  });
+});
+
+describe("the operation hazards of a deep network (renderHazards)", () => {
+  // 30 accumulations at risk in the network's order, then two failing loss-value checks
+  const hazard = (layer: string, verdict: "at-risk" | "fails", kind: "accumulation" | "loss-value"): HazardCheck => ({
+    kind,
+    layer,
+    detail: "",
+    guarded: false,
+    terms: 1024,
+    input: { elements: 1, zeroFraction: 0, shape: "constant", rms: 1, log2Spread: 0 },
+    origin: "prediction",
+    evaluations: [
+      { format: "binary16", heldIn: "accumulate", measure: "relative-error", value: 0.0156, criticalLevel: null, verdict, at: "start", sentence: `${layer} sentence.` },
+    ],
+    findings: [],
+  });
+  const hazards = [
+    ...Array.from({ length: 30 }, (_, i) => hazard(`block-${i}`, "at-risk", "accumulation")),
+    hazard("loss-a", "fails", "loss-value"),
+    hazard("loss-b", "fails", "loss-value"),
+  ];
+
+  it("shows at most HAZARD_ROW_LIMIT, failing first, and says how many there are", () => {
+    const text = renderHazards(hazards, false, 100);
+    const lines = text.split("\n").filter((line) => /^ {2}(fails|at risk) {2}/.test(line));
+    expect(lines.length).toBe(HAZARD_ROW_LIMIT);
+    expect(lines[0]).toContain("loss-a");
+    expect(lines[1]).toContain("loss-b");
+    // the network's order within a verdict
+    expect(lines[2]).toContain("block-0,");
+    expect(text).toContain(`32 operation checks at risk, the first ${HAZARD_ROW_LIMIT} shown (failing first); --all lists every one.`);
+  });
+
+  it("shows every one with --all, in the network's order", () => {
+    const lines = renderHazards(hazards, true, 100).split("\n").filter((line) => /^ {2}(fails|at risk) {2}/.test(line));
+    expect(lines.length).toBe(32);
+    expect(lines[0]).toContain("block-0,");
+    expect(lines[31]).toContain("loss-b");
+  });
+
+  it("needs no summary line when every one is shown", () => {
+    expect(renderHazards(hazards.slice(0, 5), false, 100)).not.toContain("operation checks at risk");
   });
 });
