@@ -9,6 +9,7 @@
  * `originalLine` maps back the lines an added key shifted).
  */
 import type { LineCounter } from "yaml";
+import { closestWord } from "../spec/issues.js";
 import { isAlias, isMap, isScalar, isSeq, yamlLib } from "../spec/yaml-lib.js";
 
 /** One --vary option, parsed. */
@@ -170,6 +171,29 @@ export function schemaHasPath(schema: Schema, path: readonly (string | number)[]
   return true;
 }
 
+/** The keys a JSON Schema names for the map at `path` (its properties, over every branch of a union). */
+function schemaKeysAt(schema: Schema, path: readonly (string | number)[]): string[] {
+  let schemas = resolve(schema, schema);
+  for (const key of path) schemas = childSchemas(schema, schemas, key);
+  const keys = new Set<string>();
+  for (const s of schemas) {
+    const properties = s["properties"];
+    if (properties !== null && typeof properties === "object") for (const key of Object.keys(properties)) keys.add(key);
+  }
+  return [...keys];
+}
+
+/**
+ * ` (did you mean "training.batch"?)` for a missing key at `path[depth]`: the nearest of `keys` (src/spec/issues.ts
+ * closestWord, as the spec loader's hints), shown as the whole key with that part spelt so; "" when none is near.
+ */
+function keyHint(path: readonly (string | number)[], depth: number, keys: readonly string[]): string {
+  const part = path[depth];
+  const near = typeof part === "string" ? closestWord(part, keys) : undefined;
+  if (near === undefined) return "";
+  return ` (did you mean "${describePath([...path.slice(0, depth), near, ...path.slice(depth + 1)])}"?)`;
+}
+
 function describePath(path: readonly (string | number)[]): string {
   return path.map((p, i) => (typeof p === "number" ? `[${p}]` : i === 0 ? p : `.${p}`)).join("") || "(the document)";
 }
@@ -273,10 +297,15 @@ function editFor(
       const pair = node.items.find((p) => keyName(p.key) === part);
       if (!pair) {
         const missing = path.slice(0, depth + 1);
-        if (schema && !schemaHasPath(schema, missing)) throw new VaryError(`--vary ${key}: the spec has no key ${describePath(missing)}`);
+        const keys = node.items.map((p) => String(keyName(p.key)));
+        if (schema && !schemaHasPath(schema, missing)) {
+          // the hint is among the keys the file has there and those the schema allows it to add (README, --vary)
+          const allowed = [...new Set([...keys, ...schemaKeysAt(schema, path.slice(0, depth))])];
+          throw new VaryError(`--vary ${key}: the spec has no key ${describePath(missing)}${keyHint(path, depth, allowed)}`);
+        }
         if (!schema) {
-          const keys = node.items.map((p) => String(keyName(p.key)));
-          throw new VaryError(`--vary ${key}: ${describePath(missing)} is not in the spec (${here} has ${keys.join(", ")})`);
+          const hint = keyHint(path, depth, keys);
+          throw new VaryError(`--vary ${key}: ${describePath(missing)} is not in the spec (${here} has ${keys.join(", ")}${hint === "" ? "" : `; ${hint.slice(2, -1)}`})`);
         }
         let fresh = yamlScalarText(value);
         for (let i = path.length - 1; i > depth; i--) {

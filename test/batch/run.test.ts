@@ -48,7 +48,7 @@ describe("evaluateTask", () => {
     expect(await evaluateTask({ file: "notes.txt", variant: null }, hooks)).toMatchObject({ error: { kind: "input" } });
     const [variant] = variantsOf([parseVaryOption("training.bacth=4")]);
     expect(await evaluateTask({ file: "a.yaml", variant: variant! }, hooks)).toMatchObject({
-      error: { kind: "input", message: "a.yaml: --vary training.bacth: the spec has no key training.bacth" },
+      error: { kind: "input", message: 'a.yaml: --vary training.bacth: the spec has no key training.bacth (did you mean "training.batch"?)' },
     });
   });
   test("a judge failure is an internal error; a RangeError is an input error", async () => {

@@ -159,6 +159,20 @@ describe("varyText", () => {
     expect(err("training=5")).toThrow(/holds a map or list/);
     expect(err("training[0]=5")).toThrow(/is a map of keys, not a list/);
   });
+  test("a misspelt key gets the nearest key at its level, from the file or the schema, as a whole key", () => {
+    const err = (option: string) => () => vary(SPEC, option);
+    // the file's key (a prefix slip, as the spec loader's hints take it: src/spec/issues.ts closestWord)
+    expect(err("training.batchsize=8")).toThrow('--vary training.batchsize: the spec has no key training.batchsize (did you mean "training.batch"?)');
+    // a key only the schema has (the file leaves it to its default): it can be varied, so it is suggested
+    expect(err("training.wokers=2")).toThrow('the spec has no key training.wokers (did you mean "training.workers"?)');
+    // a misspelt section: the whole key as it would read with the section spelt right
+    expect(err("trainig.batch=8")).toThrow('the spec has no key trainig (did you mean "training.batch"?)');
+    // nothing close: no guess
+    expect(err("training.zzz=8")).toThrow(/the spec has no key training\.zzz$/);
+    // without a schema, among the file's keys
+    const [variant] = variantsOf([parseVaryOption("training.bacth=2")]);
+    expect(() => varyText(SPEC, variant!)).toThrow('training.bacth is not in the spec (training has batch, loss; did you mean "training.batch"?)');
+  });
   test("refuses a path through an alias", () => {
     const text = "base: &b { width: 8 }\nlayers:\n  - *b\n";
     const [variant] = variantsOf([parseVaryOption("layers[0].width=4")]);
