@@ -20,7 +20,7 @@ const ALLOWED: Record<string, readonly string[]> = {
   measure: ["formats", "numeric", "spec", "graph", "magnitude"],
   simulate: ["graph", "ops", "formats", "numeric", "spec", "magnitude"],
   check: ["spec", "graph", "magnitude", "risk", "scale", "formats", "measure"],
-  compare: ["check", "spec", "graph", "magnitude", "risk", "scale", "formats"],
+  compare: ["check", "spec", "graph", "magnitude", "risk", "scale", "formats", "measure"],
   batch: ["check", "spec", "graph", "magnitude", "risk", "scale", "formats", "report", "measure"],
   report: ["formats", "numeric"],
   cli: ["*"],
