@@ -75,6 +75,9 @@ class Draft {
   /** the tensor contributing most to a network-wide count, and its share of it ("" and NaN for none) */
   top = "";
   topValue = Number.NaN;
+  /** that tensor's layer and profile, which the check then names instead of the site's ("" and undefined for none) */
+  topLayer = "";
+  topInput: MagnitudeProfile | undefined = undefined;
 }
 
 /** The drafts of one side (start or end) of a site: `count` records of `items` are in use. */
@@ -157,6 +160,8 @@ function fill(
   draft.notWidened = notWidened;
   draft.top = "";
   draft.topValue = Number.NaN;
+  draft.topLayer = "";
+  draft.topInput = undefined;
 }
 
 /**
@@ -185,6 +190,10 @@ export function evaluateHazard(
   }
   const evaluations: HazardEvaluation[] = [];
   const findings: Finding[] = [];
+  // a network-wide count names the tensor contributing most, as its sentence does: the check's layer and input are
+  // that tensor's (the first evaluation naming one), and so is its finding's subject
+  let layer = site.layer;
+  let input = site.input;
   for (let i = 0; i < start.count; i++) {
     const first = start.items[i] as Draft;
     const second = i < end.count ? (end.items[i] as Draft) : undefined;
@@ -193,6 +202,12 @@ export function evaluateHazard(
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
     const sentence = sentenceOf(worse, site, context);
+    const topInput = worse.topInput;
+    const subject = topInput !== undefined ? worse.topLayer : site.layer;
+    if (topInput !== undefined && input === site.input) {
+      layer = subject;
+      input = topInput;
+    }
     evaluations.push({
       format: worse.format,
       heldIn: worse.heldIn,
@@ -209,7 +224,7 @@ export function evaluateHazard(
         kind: worse.kind,
         severity: verdict,
         format: worse.format,
-        subject: site.layer,
+        subject,
         source: "hazard",
         value: worse.value,
         threshold: worse.threshold,
@@ -220,11 +235,11 @@ export function evaluateHazard(
   }
   return {
     kind: site.kind,
-    layer: site.layer,
+    layer,
     detail: site.detail,
     guarded: site.guarded,
     terms: site.terms,
-    input: site.input,
+    input,
     origin,
     evaluations,
     findings,
@@ -512,6 +527,8 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
     if (network !== undefined && network.top !== "") {
       draft.top = network.top;
       draft.topValue = network.topCount;
+      draft.topLayer = network.topLayer;
+      draft.topInput = network.topProfile;
     }
   }
 }

@@ -490,6 +490,10 @@ function judgeSite(
     perFormat.push(shared === i ? evaluateHazard(site, contexts[i] as HazardContext, origin) : (perFormat[shared] as HazardCheck));
   }
   const first = perFormat[0] ?? evaluateHazard(site, hazardContext(spec, spec.precision, lossScale, thresholds, weightGradients), origin);
+  // the layer and input named: those of the first plan whose evaluation names the tensor contributing most to a
+  // network-wide count (Adam's epsilon), as its sentence does; else the site's
+  let named = first;
+  for (let i = 0; i < perFormat.length && named.input === site.input; i++) named = perFormat[i] as HazardCheck;
   // gathered in SITE_EVALUATIONS and SITE_FINDINGS and copied out at their exact length, as a tensor's risks are
   let evaluationCount = 0;
   let findingCount = 0;
@@ -505,18 +509,19 @@ function judgeSite(
       if (f.format === format) SITE_FINDINGS[findingCount++] = f;
     }
   }
-  return siteCheck(first, SITE_EVALUATIONS.slice(0, evaluationCount), SITE_FINDINGS.slice(0, findingCount));
+  return siteCheck(first, named, SITE_EVALUATIONS.slice(0, evaluationCount), SITE_FINDINGS.slice(0, findingCount));
 }
 
-// `{ ...first, evaluations, findings }`, by literals: the keys of evaluateHazard's result in its order
-function siteCheck(first: HazardCheck, evaluations: HazardEvaluation[], findings: Finding[]): HazardCheck {
+// `{ ...first, layer, input, evaluations, findings }` (layer and input those of `named`), by literals: the keys of
+// evaluateHazard's result in its order
+function siteCheck(first: HazardCheck, named: HazardCheck, evaluations: HazardEvaluation[], findings: Finding[]): HazardCheck {
   const check: HazardCheck = {
     kind: first.kind,
-    layer: first.layer,
+    layer: named.layer,
     detail: first.detail,
     guarded: first.guarded,
     terms: first.terms,
-    input: first.input,
+    input: named.input,
     origin: first.origin,
     evaluations,
     findings,
@@ -656,7 +661,8 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
   const optimizer = training.optimizer;
   if (optimizer.kind === "adam" || optimizer.kind === "adamw") {
     // named after the smallest gradient, whose second moments are the likeliest to flush; the second moment is judged
-    // there, while ε's count of zero second moments sums over every weight gradient (src/risk/second-moments.ts)
+    // there, while ε's count of zero second moments sums over every weight gradient (src/risk/second-moments.ts) and,
+    // where it has zeros to count, names the tensor contributing most instead (src/risk/hazards.ts)
     const pick = byRms(weightGradients, "smallest");
     const layer = pick?.tensor.layer ?? "optimizer";
     const input = pick?.profile ?? constantProfile(0);

@@ -5,6 +5,7 @@ import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 import { planFormats, type CheckResult } from "../../src/risk/index.js";
 import { zeroSecondMoments } from "../../src/risk/second-moments.js";
+import { renderCheckText } from "../../src/report/check-text.js";
 
 const HAZARDS = "test/fixtures/specs/hazards";
 
@@ -125,6 +126,41 @@ describe("purpose-built hazards, end to end", () => {
     if (expected === "fails") {
       expect(evaluation?.sentence).toContain("most in hidden-a/weight-gradient");
     }
+  });
+
+  // the epsilon row names the layer its sentence names: the tensor giving most zero second moments, where most
+  // updates divide by zero, not the weight gradient of smallest rms (the second moment's row keeps that one)
+  it("a vanishing epsilon's hazard names the layer giving most zero second moments, as its sentence does", () => {
+    const result = check(load(`${HAZARDS}/adam-epsilon-top-layer.yaml`));
+    const gradients = result.tensors.filter((t) => t.role === "weight-gradient");
+    const byId = (id: string) => gradients.find((t) => t.id === id)!;
+    const classifier = byId("classifier/weight-gradient");
+    const first = byId("hidden-a/weight-gradient");
+    // the two differ: the classifier's gradient is the smallest, at both ends of the horizon ...
+    const smallest = Math.min(...gradients.flatMap((t) => [t.start.rms, t.end.rms]));
+    expect(Math.min(classifier.start.rms, classifier.end.rms)).toBe(smallest);
+    // ... but its 16 elements give at most 16 zeros per step, while hidden-a's 512 give more: for a Gaussian gradient
+    // of rms σ, 2Φ(b/σ) − 1 of the elements lie below b = √(2^-25/(1 − 0.999)), where (1 − β2)·g² flushes in
+    // binary16 (DESIGN.md §5 item 5; Φ by Abramowitz & Stegun 26.2.17, |error| < 7.5e-8)
+    const normalCdf = (x: number): number => {
+      const t = 1 / (1 + 0.2316419 * x);
+      const poly = t * (0.31938153 + t * (-0.356563782 + t * (1.781477937 + t * (-1.821255978 + t * 1.330274429))));
+      return 1 - (Math.exp((-x * x) / 2) / Math.sqrt(2 * Math.PI)) * poly;
+    };
+    const bound = Math.sqrt(2 ** -25 / 0.001);
+    expect(classifier.start.elements).toBe(16);
+    expect(first.start.elements * (2 * normalCdf(bound / first.start.rms) - 1)).toBeGreaterThan(5 * 16);
+    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant")!;
+    const evaluation = epsilon.evaluations.find((e) => e.format === "binary16")!;
+    expect(evaluation.sentence).toContain("(most in hidden-a/weight-gradient, about");
+    expect(epsilon.layer).toBe("hidden-a");
+    expect(epsilon.input).toEqual(evaluation.at === "start" ? first.start : first.end);
+    expect(epsilon.findings.map((f) => [f.format, f.severity, f.subject])).toEqual([["binary16", "fails", "hidden-a"]]);
+    expect(result.formats.find((f) => f.format === "binary16")?.findings.find((f) => f.kind === "optimizer-epsilon-flushed")?.subject).toBe("hidden-a");
+    expect(renderCheckText(result)).toContain("optimizer epsilon, hidden-a, binary16:");
+    // the optimizer check leaves the epsilon to this row; the second moment's row keeps the smallest gradient's layer
+    expect(result.optimizer.reportedAsHazards).toContain("optimizer-constant");
+    expect(result.hazards.find((h) => h.kind === "optimizer-second-moment")?.layer).toBe("classifier");
   });
 
   it("a summed loss times a loss scale of 64 overflows a binary16 accumulator", () => {
