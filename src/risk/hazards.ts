@@ -11,7 +11,7 @@ import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js"
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentSides, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { percent, plainNumber, scaleWords } from "./words.js";
+import { plainNumber, scaleWords, sharePercent } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -340,8 +340,8 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
       );
     case GRADIENT_SUM_FLUSH:
       return (
-        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, a further ` +
-        `${percent(value)} of their squared norm flushes in ${format} (${verdictWord(verdict)}).`
+        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, ` +
+        `${sharePercent(value)} more of their squared norm flushes in ${format} (${verdictWord(verdict)}).`
       );
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
@@ -358,7 +358,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     default:
       return (
         `The second moment (1 − β2)·g² of ${site.layer} flushes in ${format} for gradients below ` +
-        `${plainNumber(draft.criticalLevel as number)}: ${percent(value)} of its elements (${verdictWord(verdict)}).`
+        `${plainNumber(draft.criticalLevel as number)}: ${sharePercent(value)} of its elements (${verdictWord(verdict)}).`
       );
   }
 }

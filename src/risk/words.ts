@@ -94,6 +94,29 @@ export function percent(x: number): string {
   return `${plainNumber(x * 100)}%`;
 }
 
+// A modelled share below one in 10^8 is the far tail of a law (a Gaussian's, a draw integral's), read to no useful
+// digit: a sentence says only that it is below that floor (display only; results keep the value; common practice)
+const SHARE_FLOOR = 1e-8;
+const BELOW_SHARE_FLOOR = "less than 1e-6%";
+
+/**
+ * "less than 1e-6%" for a positive share below the display floor (1e-8), otherwise undefined: for a caller with
+ * its own digits for larger shares.
+ * @example tinyShare(4e-21) // => "less than 1e-6%"
+ */
+export function tinyShare(x: number): string | undefined {
+  return x > 0 && x < SHARE_FLOOR ? BELOW_SHARE_FLOOR : undefined;
+}
+
+/**
+ * A modelled share as {@link percent} writes it, or "less than 1e-6%" below the display floor. Thresholds and other
+ * given numbers keep `percent`.
+ * @example sharePercent(0.0123) // => "1.23%"; sharePercent(4e-21) // => "less than 1e-6%"
+ */
+export function sharePercent(x: number): string {
+  return tinyShare(x) ?? percent(x);
+}
+
 /** Binades with one decimal, e.g. "3.2 binades". */
 export function binades(x: number): string {
   const rounded = Math.round(x * 10) / 10;

@@ -17,7 +17,7 @@ import {
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
-import { notCountedSentence } from "../risk/words.js";
+import { notCountedSentence, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -434,7 +434,8 @@ function summarise(
     if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
     return "";
   };
-  const pct = (x: number) => `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
+  // a share below the risk sentences' display floor reads as they do ("less than 1e-6%"), not as the model's far tail
+  const pct = (x: number) => tinyShare(x) ?? `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
   const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
   const master = plan.masterWeights !== "none";
   const into = master ? `the ${updateFormat.name} master copy` : `the stored ${weightFormat.name} weights`;

@@ -247,6 +247,30 @@ describe("Adam's epsilon of the training setup, counted over the context's weigh
   });
 });
 
+describe("tiny modelled shares in the sentences", () => {
+  // a share below the display floor 1e-8 reads "less than 1e-6%" (src/risk/words.ts), not the law's far tail
+  it("a second moment far above bfloat16's flush bound: less than 1e-6% of its elements flush", () => {
+    // (1 − β2)·g² flushes below 2^-126 with bfloat16's subnormals flushed (SCIENCE.md §1.2), i.e. for
+    // |g| ≤ √(2^-126/0.001) ≈ 3.4e-18; for a Gaussian of rms 1e-3 that is 2Φ(b/σ) − 1 ≈ 0.798·b/σ ≈ 2.7e-15 of it
+    const judged = evaluateHazard(site({ kind: "optimizer-second-moment", input: profile({ rms: 1e-3, elements: 1e5 }) }), context({ optimizerStates: BFLOAT16_FTZ }));
+    const evaluation = judged.evaluations[0]!;
+    expect(evaluation.value).toBeGreaterThan(0);
+    expect(evaluation.value).toBeLessThan(1e-8);
+    expect(evaluation.sentence).toMatch(/: less than 1e-6% of its elements \(fits\)\.$/);
+  });
+
+  it("gradients averaged over 8 workers, each divided before the sum: less than 1e-6% more of their squared norm flushes", () => {
+    // dividing a Gaussian of rms 1 by 8 moves the binary16 flush bound 2^-25 to 2^-22 of it: the energy below is
+    // about (2/3)·φ(0)·t³ ≈ 2.5e-20 (the integral of x² over |x| < t), far under the floor
+    const judged = evaluateHazard(site({ kind: "gradient-sum", terms: 8, input: profile({ rms: 1, elements: 1e5 }) }), context({ workers: 8, workerGradients: "average" }));
+    const flush = judged.evaluations.find((e) => e.measure === "flushed-energy")!;
+    expect(flush.value).toBeLessThan(1e-8);
+    expect(flush.sentence).toBe(
+      "If each worker divides the gradients of layer by 8 before the sum, less than 1e-6% more of their squared norm flushes in binary16 (fits).",
+    );
+  });
+});
+
 describe("the start and the end of the horizon", () => {
   // each evaluation reports the worse of the two (higher verdict, then higher value): the same number as judging
   // the worse side on its own, whichever way the cheap bounds settle the comparison

@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { binades, percent, plainNumber, scaleWords } from "../../src/risk/words.js";
+import { binades, percent, plainNumber, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
 
 // The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
 // (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
@@ -61,6 +61,22 @@ describe("plainNumber", () => {
       }),
       { numRuns: 20_000 },
     );
+  });
+});
+
+describe("modelled shares in sentences", () => {
+  // a display floor of 1e-8 (1e-6 percent; common practice): the far tail of a law is not read to three digits
+  it("below the floor read 'less than 1e-6%'; at and above it, and 0, as percent writes them", () => {
+    expect(sharePercent(4e-21)).toBe("less than 1e-6%");
+    expect(sharePercent(9.99e-9)).toBe("less than 1e-6%");
+    expect(sharePercent(Number.MIN_VALUE)).toBe("less than 1e-6%");
+    expect(sharePercent(1e-8)).toBe("1e-6%");
+    expect(sharePercent(2.5e-7)).toBe(percent(2.5e-7));
+    expect(sharePercent(0.0278)).toBe("2.78%");
+    expect(sharePercent(0)).toBe("0%");
+    expect(tinyShare(1e-8)).toBeUndefined();
+    expect(tinyShare(0)).toBeUndefined();
+    expect(tinyShare(7e-10)).toBe("less than 1e-6%");
   });
 });
 
