@@ -504,8 +504,8 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment
 // is zero too — an exactly zero gradient, or (1 − β2)·g² flushed — the update divides by zero.
-// The training setup's site sums the count over the context's weight gradients at the side judged (once per check:
-// src/risk/second-moments.ts remembers it for the optimizer check); a site of the prediction is judged at its gradient.
+// The training setup's site sums the count over the context's weight gradients at the side judged (the optimizer check
+// counts by the same function); a site of the prediction is judged at its gradient.
 function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context: HazardContext, list: DraftList, side: "start" | "end" | null): void {
   const limits = context.optimizerStates;
   const epsilon = site.constant;

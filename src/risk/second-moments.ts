@@ -142,29 +142,16 @@ export interface NetworkZeroSecondMomentSides {
   end: NetworkZeroSecondMoments;
 }
 
-// Per list of weight gradients (weightGradientsOf gives one list per prediction), per flush bound and β2: the
-// epsilon hazard and the optimizer check of one check ask for the same counts, which are worked out once. A
-// prediction is data that is not changed once made (a prediction adjusted by a caller is a new object).
-const SIDES = new WeakMap<readonly TensorPrediction[], Map<string, NetworkZeroSecondMomentSides>>();
-
-/** {@link networkZeroSecondMomentsAt} at the start and at the end, remembered for the list, flush bound and β2. */
+/**
+ * {@link networkZeroSecondMomentsAt} at the start and at the end. Worked out each time it is asked for (the epsilon
+ * hazard and the optimizer check both ask, only where epsilon vanishes): ~0.1 ms for ~300 weight gradients, where a
+ * cache across calls would go stale for a caller who adjusts a prediction in place and judges it again.
+ */
 export function networkZeroSecondMomentSides(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMomentSides {
-  let known = SIDES.get(weightGradients);
-  if (known === undefined) {
-    known = new Map();
-    SIDES.set(weightGradients, known);
-  }
-  // a double's shortest decimal form names it exactly (ECMA-262 Number::toString)
-  const key = `${flushBound} ${beta2}`;
-  let sides = known.get(key);
-  if (sides === undefined) {
-    sides = {
-      start: networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2),
-      end: networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2),
-    };
-    known.set(key, sides);
-  }
-  return sides;
+  return {
+    start: networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2),
+    end: networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2),
+  };
 }
 
 /** The worse (larger) of the start and end network-wide counts; the start on a tie, as a hazard's start/end choice. */
@@ -173,23 +160,15 @@ export function networkZeroSecondMoments(weightGradients: readonly TensorPredict
   return end.perStep > start.perStep ? end : start;
 }
 
-// one list per prediction's tensors, so that the counts above are shared by every caller judging that prediction
-const WEIGHT_GRADIENTS = new WeakMap<readonly TensorPrediction[], readonly TensorPrediction[]>();
-
-/** The weight gradients of a prediction, in its order: one list per prediction (not to be changed). */
-export function weightGradientsOf(prediction: Prediction): readonly TensorPrediction[] {
+/** The weight gradients of a prediction, in its order. */
+export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
   const tensors = prediction.tensors;
-  let out = WEIGHT_GRADIENTS.get(tensors);
-  if (out === undefined) {
-    const list: TensorPrediction[] = [];
-    for (let i = 0; i < tensors.length; i++) {
-      const tensor = tensors[i] as TensorPrediction;
-      if (tensor.role === "weight-gradient") list.push(tensor);
-    }
-    out = list;
-    WEIGHT_GRADIENTS.set(tensors, out);
+  const list: TensorPrediction[] = [];
+  for (let i = 0; i < tensors.length; i++) {
+    const tensor = tensors[i] as TensorPrediction;
+    if (tensor.role === "weight-gradient") list.push(tensor);
   }
-  return out;
+  return list;
 }
 
 /** Whether the prediction carries a hazard site of this kind itself (the check then adds none for it). */

@@ -265,8 +265,8 @@ export function checkOptimizer(
     : null;
   // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
   // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
-  // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site (the
-  // counts the hazard worked out for this prediction, remembered by src/risk/second-moments.ts, not computed again)
+  // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site (by
+  // the function the hazard counts with)
   let zeros: ZeroCount = { perStep: 0, top: "" };
   if (epsilon?.vanishes) {
     if (hasSite(prediction.hazards, "optimizer-constant")) {
