@@ -93,7 +93,6 @@ const ORDER: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
 export interface CompareOptions {
   /** the plans to evaluate (default: the standard plans, and the spec's own) */
   plans?: readonly PrecisionPlan[];
-  steps?: number;
   /** seed of the dynamic-scale simulation (default 1) */
   seed?: number;
   /** the spec's measured data (`loadSpecMeasurements`), which every plan is judged with, as `check` judges one */
