@@ -8,39 +8,12 @@ import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 import { encode, safetensorsBytes, scratch } from "../measure/writers.js";
+import { probeSpec } from "../measure/probe-spec.js";
 
 const files = scratch();
 afterAll(() => files.cleanup());
 
-// an invented two-layer regressor fine-tuned from a checkpoint
-const spec = (measured: string, width = 8) => `name: measured-vary-probe
-description: an invented two-layer regressor fine-tuned from a checkpoint
-input: { features: 16, scale: 1.0 }
-training:
-  batch: 8
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: { peak: 1.0e-3, end: 1.0e-3 } }
-precision:
-  name: all-binary16
-  activations: binary16
-  weights: binary16
-  gradients: binary16
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-layers:
-  - type: dense
-    name: fc1
-    width: ${width}
-    bias: false
-    init: he-normal
-  - relu
-  - type: dense
-    name: fc2
-    width: 4
-    bias: false
-    init: lecun-normal
-${measured}`;
+const spec = (measured: string, width = 8) => probeSpec("measured-vary-probe", measured, width);
 
 // fc1 trained to weights of magnitude 3000, far from He's sqrt(2/16) (He et al. 2015, eq. 10)
 const fc1 = Array.from({ length: 8 * 16 }, (_, i) => (i % 2 ? -1 : 1) * 3000);

@@ -8,40 +8,12 @@ import { afterAll, describe, expect, it } from "vitest";
 import { checkFile } from "../../src/check.js";
 import { runCli } from "../helpers/run.js";
 import { encode, safetensorsBytes, scratch } from "./writers.js";
+import { probeSpec } from "./probe-spec.js";
 
 const files = scratch();
 afterAll(() => files.cleanup());
 
-const spec = (measured: string) => `
-name: measured-probe
-description: an invented two-layer regressor fine-tuned from a checkpoint
-input: { features: 16, scale: 1.0 }
-training:
-  batch: 8
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: { peak: 1.0e-3, end: 1.0e-3 } }
-precision:
-  name: all-binary16
-  activations: binary16
-  weights: binary16
-  gradients: binary16
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-layers:
-  - type: dense
-    name: fc1
-    width: 8
-    bias: false
-    init: he-normal
-  - relu
-  - type: dense
-    name: fc2
-    width: 4
-    bias: false
-    init: lecun-normal
-${measured}
-`;
+const spec = (measured: string) => probeSpec("measured-probe", measured);
 
 // fc1 trained to weights of magnitude 3000: 16 inputs of rms 1 give outputs of rms 3000·4 = 12000 (Poole et al. 2016
 // length map), fine for binary16's 65504 on average but with a tail that overflows

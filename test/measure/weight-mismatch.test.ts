@@ -10,43 +10,13 @@ import { afterAll, describe, expect, it } from "vitest";
 import { checkFile } from "../../src/check.js";
 import { runCli } from "../helpers/run.js";
 import { encode, safetensorsBytes, scratch } from "./writers.js";
+import { alternating, probeSpec } from "./probe-spec.js";
 
 const files = scratch();
 afterAll(() => files.cleanup());
 
-// an invented two-layer regressor fine-tuned from a checkpoint; fc1 is `width` wide
-const spec = (weights: string, width = 8) => `name: weight-mismatch-probe
-description: an invented two-layer regressor fine-tuned from a checkpoint
-input: { features: 16, scale: 1.0 }
-training:
-  batch: 8
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: { peak: 1.0e-3, end: 1.0e-3 } }
-precision:
-  name: all-binary16
-  activations: binary16
-  weights: binary16
-  gradients: binary16
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-layers:
-  - type: dense
-    name: fc1
-    width: ${width}
-    bias: false
-    init: he-normal
-  - relu
-  - type: dense
-    name: fc2
-    width: 4
-    bias: false
-    init: lecun-normal
-measured:
-  weights: [${weights}]
-`;
+const spec = (weights: string, width = 8) => probeSpec("weight-mismatch-probe", `measured:\n  weights: [${weights}]`, width);
 
-const alternating = (count: number, size: number) => Array.from({ length: count }, (_, i) => (i % 2 ? -1 : 1) * size);
 // a checkpoint of the 8-wide network: fc1 is 8×16, fc2 4×8 (a dense layer's weight is outputs × inputs)
 files.write(
   "ckpt.safetensors",
