@@ -143,6 +143,10 @@ export function wrap(text: string, width: number, firstIndent: string, indent: s
     if (!empty && line.length + 1 + word.length > width) {
       lines.push(line);
       line = indent + word;
+    } else if (empty && line.trim() !== "" && line.length + word.length > width) {
+      // a head too long for the first word as well (a long layer name): the text starts on the next line
+      lines.push(line.trimEnd());
+      line = indent + word;
     } else {
       line += (empty ? "" : " ") + word;
     }

@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { HAZARD_ROW_LIMIT, renderCheckText, renderHazards } from "../../src/report/check-text.js";
+import { HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -155,5 +155,19 @@ describe("the operation hazards of a deep network (renderHazards)", () => {
 
   it("needs no summary line when every one is shown", () => {
     expect(renderHazards(hazards.slice(0, 5), false, 100)).not.toContain("operation checks at risk");
+  });
+});
+
+describe("wrap", () => {
+  it("keeps lines within the width when a head and the first word do not fit together", () => {
+    const head = "  at risk  accumulation, repeat-1.0.use-0.residual-0.attention-1, binary16: ";
+    const text = wrap("repeat-1.0.use-0.residual-0.attention-1 accumulates 513 terms in binary16.", 80, head, "      ");
+    for (const line of text.trimEnd().split("\n")) expect(line.length).toBeLessThanOrEqual(80);
+    expect(text.split("\n")[0]).toBe(head.trimEnd());
+    expect(text).toContain("      repeat-1.0.use-0.residual-0.attention-1 accumulates 513 terms in binary16.");
+  });
+
+  it("keeps the first word beside a head that leaves room for it", () => {
+    expect(wrap("one two three", 80, "  - ", "    ")).toBe("  - one two three\n");
   });
 });
