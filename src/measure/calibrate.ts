@@ -197,7 +197,10 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
       }
       let rejected: RejectedMatch | undefined;
       const usedBy = tensor && used.get(tensor);
-      if (tensor && usedBy !== undefined) {
+      // a tensor named for this weight in `names` may serve several weights (tied weights, e.g. an embedding table
+      // shared with the output layer: the user says so); one found by the default rule is taken once
+      const tied = usedBy !== undefined && rule === "names";
+      if (tensor && usedBy !== undefined && !tied) {
         rejected = { ...sizes(tensor, w), reason: "used", usedBy };
         issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `already used for ${usedBy}; not used again for ${id}` });
         tensor = undefined;
@@ -211,12 +214,15 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
         unmatched.push(rejected ? { layer: layer.name, weight: w.name, id, tried, rejected } : { layer: layer.name, weight: w.name, id, tried });
         return w;
       }
-      used.set(tensor, id);
+      if (!tied) used.set(tensor, id);
       measured[id] = tensor;
       const match: WeightMatch = { layer: layer.name, weight: w.name, id, file: tensor.file, tensor: tensor.name, rule, elements: tensor.elements, rms: tensor.rms };
+      const notes: string[] = [];
+      if (tied) notes.push(`shared with ${usedBy} (named in measured.names)`);
       if (tensor.shape.join(",") !== w.shape.join(",")) {
-        match.note = `shape [${tensor.shape.join(", ")}] differs from the spec's [${w.shape.join(", ")}] (same element count)`;
+        notes.push(`shape [${tensor.shape.join(", ")}] differs from the spec's [${w.shape.join(", ")}] (same element count)`);
       }
+      if (notes.length > 0) match.note = notes.join("; ");
       matches.push(match);
       // the engine's variance is the elements' second moment (fan_in·var_w rule), so a measured rms² replaces it
       const secondMoment = tensor.rms * tensor.rms;
@@ -362,7 +368,7 @@ function measurementNotes(
     notes.push(
       calibration.matches.length === 0
         ? `No weight of the network is measured (0 of ${total} weights found a usable tensor in the weight files); every weight keeps the spec's initialisation.`
-        : `Weights measured from ${listed([...files], 3)} (${calibration.matches.length} of ${total} weight${total === 1 ? "" : "s"}): ${listed(calibration.matches.map((m) => `${m.id} ← ${m.tensor}${m.rule === "names" ? " (names)" : ""}`))}.`,
+        : `Weights measured from ${listed([...files], 3)} (${calibration.matches.length} of ${total} weight${total === 1 ? "" : "s"}): ${listed(calibration.matches.map(matchWords))}.`,
     );
     const rejected = unmatched.filter((u) => u.rejected !== undefined);
     if (rejected.length > 0) {
@@ -420,4 +426,10 @@ export function recordedProfile(statistic: RecordedStatistic, predicted: TensorP
     return { ...base, shape: "log-normal", elementLog2Spread: Math.log2(q99 / q50) / 2.3263478740408408 };
   }
   return base;
+}
+
+/** One matched weight in the notes: `fc2/weight ← shared (names; shared with fc1/weight …)`. */
+function matchWords(m: WeightMatch): string {
+  const said = [...(m.rule === "names" ? ["names"] : []), ...(m.note === undefined ? [] : [m.note])];
+  return `${m.id} ← ${m.tensor}${said.length > 0 ? ` (${said.join("; ")})` : ""}`;
 }

@@ -137,7 +137,7 @@ describe("a measured weight with another element count", () => {
     expect(plainRow.status).toBe("error");
   });
 
-  it("a tensor two weights name (tied weights) is used once; the notes say so, and it is no error", () => {
+  it("a tensor two weights name in measured.names (tied weights) serves both; the notes say so, and it is no error", () => {
     // fc1 8×8 and fc2 8×8: both hold 64 elements, so the one tensor fits either
     files.write("tied.safetensors", safetensorsBytes([{ name: "shared", dtype: "F32", shape: [8, 8], data: encode("F32", alternating(64, 0.5)) }]));
     const text = spec("tied.safetensors")
@@ -149,8 +149,10 @@ describe("a measured weight with another element count", () => {
     expect(run.stderr).toBe("");
     expect(run.status).not.toBe(2);
     const notes = (JSON.parse(run.stdout) as { assumptions: string[] }).assumptions.join("\n");
-    expect(notes).toMatch(/\(1 of 2 weights\): fc1\/weight ← shared \(names\)/);
-    expect(notes).toMatch(/fc2\/weight \(shared is already used for fc1\/weight\)/);
+    expect(notes).toMatch(/\(2 of 2 weights\): fc1\/weight ← shared \(names\)/);
+    expect(notes).toMatch(/fc2\/weight ← shared \(names; shared with fc1\/weight \(named in measured.names\)\)/);
+    const tensors = (JSON.parse(run.stdout) as { tensors: { id: string; source: string }[] }).tensors;
+    expect(tensors.find((t) => t.id === "fc2/weight")?.source).toBe("measured");
   });
 
   it("compare: the same lines as plain check, exit code 2", () => {
