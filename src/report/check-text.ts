@@ -260,7 +260,7 @@ export function renderHazards(hazards: readonly HazardCheck[], all: boolean, wid
   const shown = all ? rows : [...rows].sort((a, b) => Number(b.evaluation.verdict === "fails") - Number(a.evaluation.verdict === "fails")).slice(0, HAZARD_ROW_LIMIT);
   let out = "";
   for (const { hazard, evaluation } of shown) {
-    const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${hazard.layer}, ${evaluation.format}: `;
+    const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${evaluation.layer ?? hazard.layer}, ${evaluation.format}: `;
     out += wrap(evaluation.sentence, width, head, "      ");
   }
   if (shown.length < rows.length) {

@@ -208,7 +208,7 @@ export function evaluateHazard(
       layer = subject;
       input = topInput;
     }
-    evaluations.push({
+    const evaluation: HazardEvaluation = {
       format: worse.format,
       heldIn: worse.heldIn,
       measure: worse.measure,
@@ -217,7 +217,9 @@ export function evaluateHazard(
       verdict,
       at,
       sentence,
-    });
+    };
+    evaluation.layer = subject;
+    evaluations.push(evaluation);
     if (verdict !== "fits") {
       // `at` always present (undefined for a site without an end, which JSON leaves out): one layout
       findings.push({
@@ -233,6 +235,8 @@ export function evaluateHazard(
       });
     }
   }
+  // an evaluation names its own layer only where it is not the check's
+  for (let i = 0; i < evaluations.length; i++) if ((evaluations[i] as HazardEvaluation).layer === layer) delete (evaluations[i] as HazardEvaluation).layer;
   return {
     kind: site.kind,
     layer,

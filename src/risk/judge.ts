@@ -502,7 +502,8 @@ function judgeSite(
     const c = perFormat[i] as HazardCheck;
     for (let j = 0; j < c.evaluations.length; j++) {
       const e = c.evaluations[j] as HazardEvaluation;
-      if (e.format === format) SITE_EVALUATIONS[evaluationCount++] = e;
+      // an evaluation of a plan whose check names another layer than the one named here keeps its own
+      if (e.format === format) SITE_EVALUATIONS[evaluationCount++] = e.layer === undefined && c.layer !== named.layer ? { ...e, layer: c.layer } : e;
     }
     for (let j = 0; j < c.findings.length; j++) {
       const f = c.findings[j] as Finding;
@@ -515,6 +516,11 @@ function judgeSite(
 // `{ ...first, layer, input, evaluations, findings }` (layer and input those of `named`), by literals: the keys of
 // evaluateHazard's result in its order
 function siteCheck(first: HazardCheck, named: HazardCheck, evaluations: HazardEvaluation[], findings: Finding[]): HazardCheck {
+  // an evaluation names its own layer only where it differs from the check's
+  for (let i = 0; i < evaluations.length; i++) {
+    const evaluation = evaluations[i] as HazardEvaluation;
+    if (evaluation.layer === named.layer) delete evaluation.layer;
+  }
   const check: HazardCheck = {
     kind: first.kind,
     layer: named.layer,

@@ -112,6 +112,11 @@ export interface HazardEvaluation {
   at: "start" | "end";
   /** one sentence in plain words */
   sentence: string;
+  /**
+   * the layer this evaluation is about, when it is not the check's `layer`: a network-wide count (Adam's epsilon)
+   * names the tensor contributing most, which can differ from format to format
+   */
+  layer?: string;
 }
 
 /** An operation site with its judgement in each relevant format. */

@@ -295,3 +295,38 @@ describe("findTensor", () => {
     expect(!missing.ok && missing.candidates[0]).toBe("dense-0/weight");
   });
 });
+
+describe("Adam's epsilon judged in two state formats", () => {
+  // binary16 flushes (1 − β2)·g² below 2^-25 (half its smallest subnormal 2^-24, IEEE 754-2019 §3.6), i.e. |g| below
+  // b = √(2^-25/0.001) ≈ 5.5e-3; e4m3 below 2^-10 (half its smallest subnormal 2^-9, OCP 8-bit spec Table 1), i.e.
+  // |g| below ≈ 0.99. "narrow" (512 elements at rms 1e-3) flushes almost wholly in both; "wide" (4096 at rms 1) about
+  // 0.44% in binary16 (2Φ(0.0055) − 1, 18 elements) but ~68% in e4m3 (2Φ(0.99) − 1, ~2,800): the tensor giving most
+  // zero second moments differs between the formats, and each evaluation names its own.
+  const gradient = (id: string, elements: number, rms: number) =>
+    tensor(id, { role: "weight-gradient", slot: "gradients", shape: [elements], start: profile({ elements, rms }), end: profile({ elements, rms }) });
+  const prediction: Prediction = {
+    specName: "two widths",
+    tensors: [gradient("narrow/weight-gradient", 512, 1e-3), gradient("wide/weight-gradient", 4096, 1)],
+    hazards: [],
+    assumptions: [],
+  };
+
+  it("names the top contributor per format, in the result and in the text", async () => {
+    const result = judgePrediction(spec(), prediction, { formats: ["binary16", "e4m3"], lossScale: 1 });
+    const epsilon = result.hazards.find((h) => h.kind === "optimizer-constant")!;
+    const layerOf = (format: string) => {
+      const evaluation = epsilon.evaluations.find((e) => e.format === format)!;
+      return evaluation.layer ?? epsilon.layer;
+    };
+    expect(layerOf("binary16")).toBe("narrow");
+    expect(layerOf("e4m3")).toBe("wide");
+    for (const format of ["binary16", "e4m3"]) {
+      const evaluation = epsilon.evaluations.find((e) => e.format === format)!;
+      expect(evaluation.sentence).toContain(`(most in ${layerOf(format)}/weight-gradient`);
+    }
+    const { renderHazards } = await import("../../src/report/check-text.js");
+    const text = renderHazards(result.hazards, true, 200);
+    expect(text).toMatch(/optimizer epsilon, narrow, binary16: /);
+    expect(text).toMatch(/optimizer epsilon, wide, e4m3: /);
+  });
+});
