@@ -168,7 +168,7 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
   const end = scaled.same ? start : evaluate(tensor.end, scaled.end, statistics.end, limits, options);
   const endScaleLog2 = evaluatedScaleLog2;
   const worst = worseOf(start, end);
-  const findings = tensorFindings(tensor, limits, worst, options);
+  const findings = tensorFindings(tensor, limits, worst, start, end, options);
   return {
     format: limits.format,
     judged: options.judged,
@@ -270,6 +270,8 @@ function tensorFindings(
   tensor: TensorPrediction,
   limits: RangeLimits,
   worst: WorstRisk,
+  start: ProfileRisk,
+  end: ProfileRisk,
   options: TensorRiskOptions,
 ): Finding[] {
   // gathered in FOUND, then copied out at their exact length (one allocation site for every tensor's findings,
@@ -337,8 +339,11 @@ function tensorFindings(
       };
     }
   }
+  // worst.flushAt follows the flushed energy; a share of elements is told at the moment that share is worst, which
+  // can be the other end of the horizon (a spread widening at the end flushes more elements but less energy)
   const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
+    const at = end.flushedFraction > start.flushedFraction ? "end" : "start";
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;
     findings[found++] = {
       format,
@@ -348,10 +353,10 @@ function tensorFindings(
       severity: flushed,
       value: worst.flushedFraction,
       threshold,
-      at: worst.flushAt,
+      at,
       sentence: [
         percent(worst.flushedFraction), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
-        when(worst.flushAt), " (limit ", percent(threshold), ").",
+        when(at), " (limit ", percent(threshold), ").",
       ].join(""),
     };
   }
@@ -364,7 +369,7 @@ function tensorFindings(
       severity: "at-risk",
       value: worst.subnormalFraction,
       threshold: t.subnormalAtRisk,
-      at: worst.flushAt,
+      at: end.subnormalFraction > start.subnormalFraction ? "end" : "start",
       sentence: [
         percent(worst.subnormalFraction), " of the nonzero elements of ", subject, " are subnormal in ", format,
         ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",

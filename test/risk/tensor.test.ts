@@ -66,6 +66,31 @@ describe("tensorFormatRisk", () => {
     expect(risk.findings.map((f) => f.kind).sort()).toEqual(["flushed-values", "gradient-energy-flushed", "subnormal-values"]);
   });
 
+  it("tells a share of flushed elements at the moment that share is worst, even when the flushed energy is worst at the other", () => {
+    // start: Gaussian σ = 1e-5, flushed ≈ 2^-25·√(2/π)/σ = 2.38e-3 (SCIENCE.md §4 small-t form; 2^-25 is half of
+    // binary16's smallest subnormal 2^-24, IEEE 754-2019 Table 3.5). end: log-normal of rms 1 and log2 spread 6
+    // (ln-sd s = 6·ln 2), median e^(−s²), so the share below 2^-25 is Φ((ln 2^-25 + s²)/s) ≈ 0.497 (definition of the
+    // log-normal), while its energy flushed is far smaller than the start's
+    const activation = tensor({
+      id: "mixer/activation",
+      role: "activation",
+      slot: "activations",
+      start: profile({ rms: 1e-5 }),
+      end: profile({ shape: "log-normal", rms: 1, elementLog2Spread: 6 }),
+    });
+    const risk = tensorFormatRisk(activation, BINARY16, tensorStatistics(activation, 1, DEFAULT_THRESHOLDS), options);
+    const s = 6 * Math.LN2;
+    const phi = (x: number): number => 0.5 * (1 + Math.sign(x) * Math.sqrt(1 - Math.exp((-2 * x * x) / Math.PI))); // Pólya's approximation, within 3e-3
+    expect(risk.end.flushedFraction).toBeCloseTo(phi((Math.log(2 ** -25) + s * s) / s), 2);
+    expect(risk.start.flushedFraction).toBeCloseTo((2 ** -25 * Math.sqrt(2 / Math.PI)) / 1e-5, 4);
+    expect(risk.start.flushedEnergy).toBeGreaterThan(risk.end.flushedEnergy);
+    const flushed = risk.findings.find((f) => f.kind === "flushed-values");
+    expect(flushed?.at).toBe("end");
+    expect(flushed?.sentence).toContain("at the end of the horizon");
+    // the subnormal share is worst at the start (σ = 1e-5 lies below binary16's smallest normal 2^-14)
+    expect(risk.findings.find((f) => f.kind === "subnormal-values")?.at).toBe("start");
+  });
+
   it("applies the loss scale to gradients: 2^10 moves σ = 1e-7 up to where binary16 flushes almost nothing", () => {
     const t = tensor({ start: profile({ rms: 1e-7 }), end: profile({ rms: 1e-7 }) });
     const scaled = tensorFormatRisk(t, BINARY16, tensorStatistics(t, 1024, DEFAULT_THRESHOLDS), options);
