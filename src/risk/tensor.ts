@@ -263,6 +263,11 @@ function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "
   return null;
 }
 
+// where a share is larger; on a tie, the moment of the worst flushed energy
+function moreAt(start: number, end: number, tie: "start" | "end"): "start" | "end" {
+  return end > start ? "end" : start > end ? "start" : tie;
+}
+
 // the findings of the tensor being judged (its first entries), before they are copied out
 const FOUND: Finding[] = [];
 
@@ -343,7 +348,7 @@ function tensorFindings(
   // can be the other end of the horizon (a spread widening at the end flushes more elements but less energy)
   const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
-    const at = end.flushedFraction > start.flushedFraction ? "end" : "start";
+    const at = moreAt(start.flushedFraction, end.flushedFraction, worst.flushAt);
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;
     findings[found++] = {
       format,
@@ -369,7 +374,7 @@ function tensorFindings(
       severity: "at-risk",
       value: worst.subnormalFraction,
       threshold: t.subnormalAtRisk,
-      at: end.subnormalFraction > start.subnormalFraction ? "end" : "start",
+      at: moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt),
       sentence: [
         percent(worst.subnormalFraction), " of the nonzero elements of ", subject, " are subnormal in ", format,
         ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
