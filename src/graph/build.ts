@@ -49,7 +49,8 @@ export function buildGraph(spec: NetworkSpec): GraphResult {
   if (input === undefined) return { ok: false, issues: walk.issues };
   const layers: GraphLayer[] = [];
   const output = expandList(walk, spec.layers, "", input, 0, layers);
-  if (!walk.aborted) {
+  // a shape error in the first layer also leaves nothing placed: that error is the one to tell
+  if (!walk.aborted && walk.issues.length === 0) {
     if (layers.length === 0) walk.issues.push({ path: ["layers"], message: "the network has no layers" });
     else if (output !== undefined) checkLoss(walk, output);
   }

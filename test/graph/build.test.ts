@@ -172,4 +172,13 @@ describe("buildGraph reports shape errors with the spec path", () => {
     const p = pool("p", "average-pool", 9);
     expect(issues(buildGraph(makeSpec([p], { input: image(1, 4, 4) })))[0]?.path).toBe(p.path.join("."));
   });
+
+  test("a shape error in the first layer is the only issue: the network is not also said to have no layers", () => {
+    const block = residual("block", [dense("narrower", 32)]);
+    expect(issues(buildGraph(makeSpec([block, dense("out", 1)])))).toEqual([
+      { path: block.path.join("."), message: expect.stringContaining("64 features into 1 position × 32 features") },
+    ]);
+    const p = pool("p", "max-pool", 9);
+    expect(issues(buildGraph(makeSpec([p, flatten("f"), dense("out", 1)], { input: image(1, 4, 4) })))).toHaveLength(1);
+  });
 });
