@@ -20,17 +20,25 @@ function binadeWords(value: number | null): string {
   return value === null ? "n/a (all zeros)" : `${formatBinades(value)} binades`;
 }
 
-function signed(log2: number): string {
+// log2 factors are shown with two decimals: one below half the last digit reads as 0.00 and moves nothing visibly
+const SHOWN_LOG2 = 0.005;
+
+function twoDecimals(log2: number): string {
   const text = log2.toFixed(2);
-  return log2 > 0 ? `+${text}` : text === "-0.00" ? "0.00" : text;
+  return text === "-0.00" ? "0.00" : text;
 }
 
-/** The layers that shrink (most negative log2) or grow (most positive) the tensor most, up to `count` each. */
+function signed(log2: number): string {
+  const text = twoDecimals(log2);
+  return log2 > 0 && text !== "0.00" ? `+${text}` : text;
+}
+
+/** The layers that shrink (most negative log2) or grow (most positive) the tensor most, up to `count` each; factors that read 0.00 are neither. */
 export function strongestFactors(ledger: readonly LedgerEntry[], count = 3): { shrink: LedgerEntry[]; grow: LedgerEntry[] } {
   const sorted = [...ledger].sort((a, b) => a.log2Factor - b.log2Factor);
   return {
-    shrink: sorted.filter((entry) => entry.log2Factor < -1e-9).slice(0, count),
-    grow: sorted.filter((entry) => entry.log2Factor > 1e-9).reverse().slice(0, count),
+    shrink: sorted.filter((entry) => entry.log2Factor <= -SHOWN_LOG2).slice(0, count),
+    grow: sorted.filter((entry) => entry.log2Factor >= SHOWN_LOG2).reverse().slice(0, count),
   };
 }
 
@@ -58,7 +66,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
         entry.layer,
         signed(entry.log2Factor),
         `×${formatValue(2 ** entry.log2Factor, 3)}`,
-        running.toFixed(2),
+        twoDecimals(running),
         entry.rule,
         entry.source,
       ];
@@ -101,7 +109,8 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     const w = risk.worst;
     // a format judged at another loss scale than the one above (its gradients' own window, or none)
     const scaled = risk.statistics !== undefined && risk.statistics.factor !== tensor.statistics.factor ? ` (at loss scale ${formatValue(risk.statistics.factor)})` : "";
-    const head = `  ${risk.format}${risk.judged ? "" : " (not holding it)"}${scaled}: ${verdictText(risk.verdict, style)}; `;
+    // a format not holding the tensor has no findings, so "fits" would read as a verdict its numbers may contradict
+    const head = `  ${risk.format}${scaled}: ${risk.judged ? verdictText(risk.verdict, style) : "not judged (it does not hold this tensor)"}; `;
     const numbers =
       `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)}, ` +
       `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +

@@ -1,0 +1,60 @@
+import { describe, expect, it } from "vitest";
+import { check } from "../../src/check.js";
+import type { LedgerEntry } from "../../src/magnitude/types.js";
+import { renderExplainText, strongestFactors } from "../../src/report/check-explain.js";
+import { parseSpec } from "../../src/spec/index.js";
+
+// The explain text: which factors it names as the strongest, and how it words a format that does not hold the tensor.
+
+function entry(layer: string, log2Factor: number): LedgerEntry {
+  return { layer, log2Factor, rule: "r", source: "s" } as LedgerEntry;
+}
+
+describe("strongestFactors", () => {
+  it("names no factor that reads 0.00 at the two decimals the ledger shows", () => {
+    const { shrink, grow } = strongestFactors([entry("norm", -4.3), entry("skip", 0.004), entry("query", -0.001), entry("table", 4.29), entry("zeros", 0.5)]);
+    expect(shrink.map((e) => e.layer)).toEqual(["norm"]);
+    expect(grow.map((e) => e.layer)).toEqual(["table", "zeros"]);
+  });
+});
+
+// A small 8-bit plan with per-tensor scale factors: e4m3 holds the forward pass, e5m2 the gradients
+const parsed = parseSpec(
+  [
+    "name: explain-probe",
+    "input: { features: 256 }",
+    "training: { batch: 64, loss: { kind: cross-entropy, classes: 10 } }",
+    "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: tensor }",
+    "layers:",
+    "  - { type: dense, width: 256, init: he-normal }",
+    "  - relu",
+    "  - { type: dense, width: 10 }",
+  ].join("\n"),
+  "explain-probe.yaml",
+);
+if (!parsed.ok) throw new Error("the probe spec does not parse");
+const result = check(parsed.spec, { ledger: true, everyFormat: true });
+
+describe("renderExplainText", () => {
+  it("gives a format that does not hold the tensor its numbers but no verdict of its own", () => {
+    const tensor = result.tensors.find((t) => t.id === "dense-0/activation-gradient")!;
+    const notHolding = tensor.risks.filter((r) => !r.judged).map((r) => r.format);
+    expect(notHolding).toContain("e4m3");
+    const text = renderExplainText(result, tensor, { width: 400 });
+    for (const format of notHolding) {
+      const line = text.split("\n").find((l) => l.startsWith(`  ${format}`))!;
+      expect(line).toContain(`${format}: not judged (it does not hold this tensor); flushed`);
+      expect(line).not.toMatch(/: (fits|at risk|fails);/);
+    }
+    expect(text).toMatch(/\n {2}e5m2: (fits|at risk|fails); flushed/);
+  });
+
+  it("writes a running total that rounds to zero as 0.00, not -0.00", () => {
+    const tensor = result.tensors.find((t) => t.id === "relu-1/activation")!;
+    // an embedding multiplier then a norm that undoes it, leaving -1e-4 binades
+    const ledger = [entry("table", 4.2901), entry("norm", -4.2902)];
+    const rows = renderExplainText(result, { ...tensor, ledger }, { width: 400 }).split("\n").filter((l) => /^ +2 +norm/.test(l));
+    expect(rows).toHaveLength(1);
+    expect(rows[0]).toMatch(/-4\.29 +×0\.0511 +0\.00 /);
+  });
+});
