@@ -299,12 +299,13 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
     const verdict = verdictText(format.verdict, style) + " ".repeat(Math.max(0, 7 - VERDICT_WORDS[format.verdict].length));
     out +=
       `  ${format.format.padEnd(formatWidth)}  ${verdict}  ` +
-      style.role("muted", `${format.planned ? "holds" : "in place of the plan's formats, holds"} ${holds || "nothing"}; ${format.tensorsJudged} tensors`) +
+      style.role("muted", `${format.planned ? "holds" : "in place of the plan's formats, holds"} ${holds || "nothing"}; ${format.tensorsJudged} ${format.tensorsJudged === 1 ? "tensor" : "tensors"}`) +
       "\n";
     const shown = format.reasons.slice(0, 5);
     for (const reason of shown) out += wrap(reason, width, "    - ", "      ");
     if (format.reasons.length > shown.length) {
-      out += `    - and ${format.reasons.length - shown.length} more kinds of finding (--json lists every one).\n`;
+      const more = format.reasons.length - shown.length;
+      out += `    - and ${more} more ${more === 1 ? "kind" : "kinds"} of finding (--json lists every one).\n`;
     }
   }
 

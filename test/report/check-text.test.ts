@@ -26,6 +26,20 @@ describe("the optimizer section names where updates are added", () => {
   });
 });
 
+describe("the verdict per format counts in words", () => {
+  it("says '1 more kind of finding' and '1 tensor' in the singular", () => {
+    const result = check(example("deep-relu-he.yaml"));
+    const first = result.formats[0]!;
+    const reasons = ["one.", "two.", "three.", "four.", "five.", "six."];
+    const edited = { ...result, formats: [{ ...first, reasons, tensorsJudged: 1 }, ...result.formats.slice(1)] };
+    const text = renderCheckText(edited, { width: 400 });
+    expect(text).toContain("    - and 1 more kind of finding (--json lists every one).\n");
+    expect(text).toMatch(new RegExp(`\\n  ${first.format} .*; 1 tensor\\n`));
+    const seven = { ...result, formats: [{ ...first, reasons: [...reasons, "seven."] }, ...result.formats.slice(1)] };
+    expect(renderCheckText(seven, { width: 400 })).toContain("    - and 2 more kinds of finding");
+  });
+});
+
 describe("hazard lines name the kind of their site", () => {
   it("labels the epsilon line 'optimizer epsilon' and the second-moment line 'optimizer second moment'", () => {
     const lines = renderCheckText(check(example("deep-relu-he.yaml")), { all: true, width: 400 }).split("\n");
