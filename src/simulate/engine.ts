@@ -591,7 +591,7 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
   if (setup.accumulate !== undefined) {
     list.push(
       setup.accumulate === Math.fround
-        ? `Products accumulate in binary32 (${setup.plan.accumulate}): every product and partial sum is rounded, over blocks of 256 terms.`
+        ? `Products accumulate in binary32${setup.plan.accumulate === "binary32" ? "" : ` (for the plan's ${setup.plan.accumulate})`}: every product and partial sum is rounded, over blocks of 256 terms.`
         : `Products accumulate in ${setup.plan.accumulate}: every product and partial sum is rounded, summed in order.`,
     );
   }

@@ -146,6 +146,13 @@ describe("simulation engine", () => {
     expect(r.assumptions.join(" ")).toContain("√(4/2)");
   });
 
+  it("names the accumulate format once, and the plan's tf32 beside the binary32 it is simulated in", () => {
+    const plain = runSimulation(spec(MLP)).assumptions.find((a) => a.startsWith("Products accumulate"));
+    expect(plain).toBe("Products accumulate in binary32: every product and partial sum is rounded, over blocks of 256 terms.");
+    const tf32 = runSimulation(spec(MLP.replace("accumulate: binary32", "accumulate: tf32"))).assumptions.find((a) => a.startsWith("Products accumulate"));
+    expect(tf32).toContain("Products accumulate in binary32 (for the plan's tf32):");
+  });
+
   it("refuses a spec too large for the memory limit, naming the memory and a shrink that fits", () => {
     const big = spec(MLP.replace("width: 64, init: he-normal }\n  - relu\n  - { type: dense, width: 64", "width: 8192, init: he-normal }\n  - relu\n  - { type: dense, width: 8192"));
     let error: unknown;
