@@ -116,6 +116,8 @@ export function formatValue(value: number, digits = 3): string {
 export function formatPercent(share: number): string {
   if (Number.isNaN(share)) return NOT_A_NUMBER;
   if (share > 0 && share < 0.0005) return "<0.1%";
+  // likewise at the top: a share short of all would round to "100.0%", which reads as certainty
+  if (share < 1 && share >= 0.9995) return ">99.9%";
   return `${(share * 100).toFixed(1)}%`;
 }
 

@@ -263,6 +263,11 @@ function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "
   return null;
 }
 
+// a share opening a sentence ("more than 99.9%" for a share short of all)
+function sentenceStart(text: string): string {
+  return text.charAt(0).toUpperCase() + text.slice(1);
+}
+
 // where a share is larger; on a tie, the moment of the worst flushed energy
 function moreAt(start: number, end: number, tie: "start" | "end"): "start" | "end" {
   return end > start ? "end" : start > end ? "start" : tie;
@@ -360,7 +365,7 @@ function tensorFindings(
       threshold,
       at,
       sentence: [
-        percent(worst.flushedFraction), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
+        sentenceStart(percent(worst.flushedFraction)), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
         when(at), " (limit ", percent(threshold), ").",
       ].join(""),
     };
@@ -376,7 +381,7 @@ function tensorFindings(
       threshold: t.subnormalAtRisk,
       at: moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt),
       sentence: [
-        percent(worst.subnormalFraction), " of the nonzero elements of ", subject, " are subnormal in ", format,
+        sentenceStart(percent(worst.subnormalFraction)), " of the nonzero elements of ", subject, " are subnormal in ", format,
         ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
       ].join(""),
     };

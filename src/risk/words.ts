@@ -87,11 +87,14 @@ function slowPlainNumber(x: number, plain: boolean): string {
 }
 
 /**
- * A share as a percentage with up to three significant digits.
+ * A share as a percentage with up to three significant digits; a share below 1 that would read "100%" reads
+ * "more than 99.9%".
  * @example percent(0.0123) // => "1.23%"
  */
 export function percent(x: number): string {
-  return `${plainNumber(x * 100)}%`;
+  const text = plainNumber(x * 100);
+  // a share short of all rounds to "100" from 99.95% up: that would read as certainty (common practice)
+  return text === "100" && x < 1 ? "more than 99.9%" : `${text}%`;
 }
 
 // A modelled share below one in 10^8 is the far tail of a law (a Gaussian's, a draw integral's), read to no useful

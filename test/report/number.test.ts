@@ -81,5 +81,9 @@ describe("values", () => {
     expect(formatPercent(0.125)).toBe("12.5%");
     expect(formatPercent(0.0001)).toBe("<0.1%");
     expect(formatPercent(0)).toBe("0.0%");
+    // as "<0.1%" at the bottom: a share short of all is not rounded up to certainty (common practice)
+    expect(formatPercent(0.9999950632426285)).toBe(">99.9%");
+    expect(formatPercent(0.9994)).toBe("99.9%");
+    expect(formatPercent(1)).toBe("100.0%");
   });
 });

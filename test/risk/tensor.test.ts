@@ -89,6 +89,13 @@ describe("tensorFormatRisk", () => {
     expect(flushed?.sentence).toContain("at the end of the horizon");
     // the subnormal share is worst at the start (σ = 1e-5 lies below binary16's smallest normal 2^-14)
     expect(risk.findings.find((f) => f.kind === "subnormal-values")?.at).toBe("start");
+    // log2 spread 12: Φ((ln 2^-25 + s²)/s) with s = 12·ln 2 is above 0.9995 but below 1, so the sentence opens
+    // with "More than 99.9%", never "100%" (certainty; common practice)
+    const wider = { ...activation, end: profile({ shape: "log-normal", rms: 1, elementLog2Spread: 12 }) };
+    const widerRisk = tensorFormatRisk(wider, BINARY16, tensorStatistics(wider, 1, DEFAULT_THRESHOLDS), options);
+    expect(widerRisk.end.flushedFraction).toBeGreaterThan(0.9995);
+    expect(widerRisk.end.flushedFraction).toBeLessThan(1);
+    expect(widerRisk.findings.find((f) => f.kind === "flushed-values")?.sentence).toMatch(/^More than 99\.9% of the nonzero elements of mixer\/activation round/);
   });
 
   it("applies the loss scale to gradients: 2^10 moves σ = 1e-7 up to where binary16 flushes almost nothing", () => {

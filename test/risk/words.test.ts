@@ -83,6 +83,10 @@ describe("modelled shares in sentences", () => {
 describe("other wording", () => {
   it("percent, binades and scales", () => {
     expect(percent(0.0123)).toBe("1.23%");
+    // a share short of all is never written as 100% (it would read as certainty; common practice)
+    expect(percent(0.9999950632426285)).toBe("more than 99.9%");
+    expect(percent(0.9994)).toBe("99.9%");
+    expect(percent(1)).toBe("100%");
     expect(binades(3.24)).toBe("3.2 binades");
     expect(binades(1)).toBe("1.0 binade");
     expect(scaleWords(131072)).toBe("2^17");
