@@ -7,6 +7,7 @@
 import { createRequire } from "node:module";
 import type * as Zod from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
+import { didYouMean } from "./issues.js";
 import {
   ACTIVATION_TYPES,
   ATTENTION_SCALINGS,
@@ -29,6 +30,14 @@ import {
   REDUCTIONS,
   WORKER_GRADIENTS,
 } from "./limits.js";
+
+// the keys of the three input kinds, to name a misspelt one ("featurs")
+const INPUT_KEYS = ["features", "positions", "scale", "tokens", "channels", "height", "width"];
+
+function misspeltInputKeys(input: object): string {
+  const unknown = Object.keys(input).filter((key) => !INPUT_KEYS.includes(key));
+  return unknown.map((key) => `; unknown key "${key}"${didYouMean(key, INPUT_KEYS)}`).join("");
+}
 
 export {
   ACTIVATION_TYPES,
@@ -356,8 +365,10 @@ function buildSchemas(z: typeof Zod) {
             ? "missing key"
             : issue.code === "invalid_union" && inputKindCount(issue.input) > 1
             ? `${FINAL_MESSAGE}give one kind of input: features (with positions, scale), tokens, or channels, height and width (with scale)`
+            : issue.code === "invalid_union" && Array.isArray(issue.input)
+            ? `${FINAL_MESSAGE}expected a mapping such as { features: 784 }, got a list`
             : issue.code === "invalid_union" && inputKindCount(issue.input) === 0 && typeof issue.input === "object" && issue.input !== null
-              ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width`
+              ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width${misspeltInputKeys(issue.input as object)}`
               : undefined,
       },
     )
