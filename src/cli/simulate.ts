@@ -148,7 +148,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   const byId = new Map(rows.map((r) => [r.id, r]));
   const shown = result.tensors.filter((t) => options.all === true || hasFinding(t) || byId.get(t.id)?.disagrees === true);
   const columns = [
-    { title: "tensor", maxWidth: 60 },
+    { title: "tensor", maxWidth: 60, cut: "middle" as const },
     { title: "format" },
     { title: "predicted rms" },
     { title: "measured rms" },

@@ -74,7 +74,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     out += renderTable(
       [
         { title: "#", align: "right" },
-        { title: "layer", maxWidth: 40 },
+        { title: "layer", maxWidth: 40, cut: "middle" },
         { title: "log2", align: "right" },
         { title: "multiplier", align: "right" },
         { title: "running log2", align: "right" },

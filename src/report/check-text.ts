@@ -223,7 +223,7 @@ export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: Te
   });
   return renderTable(
     [
-      { title: "layer", maxWidth: 40 },
+      { title: "layer", maxWidth: 40, cut: "middle" },
       { title: "role" },
       { title: "format" },
       { title: "rms", align: "right" },

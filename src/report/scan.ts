@@ -86,7 +86,7 @@ export function renderScanTable(result: ScanResult, options: ScanRenderOptions =
   out += `\n${style.role("heading", options.all ? "tensors" : "tensors with findings")}\n`;
   out += renderTable(
     [
-      { title: "tensor", maxWidth: 60 },
+      { title: "tensor", maxWidth: 60, cut: "middle" },
       { title: "dtype" },
       { title: "shape" },
       { title: "zeros", align: "right" },
@@ -115,7 +115,7 @@ export function renderScanTable(result: ScanResult, options: ScanRenderOptions =
     out += `\n${style.role("heading", "casts")}  (scales: multiply by 2^k before the cast; the range keeps every value from flushing or overflowing)\n`;
     out += renderTable(
       [
-        { title: "tensor", maxWidth: 60 },
+        { title: "tensor", maxWidth: 60, cut: "middle" },
         { title: "format" },
         { title: "verdict" },
         { title: "flushed", align: "right" },

@@ -16,8 +16,13 @@ export interface TableColumn {
    * numbers or number-like text such as `-3.2`, `3.2e-5`, `12%` or `2^16`, and left-aligns the rest.
    */
   align?: "left" | "right" | "auto";
-  /** cut longer visible text to this many characters, ending with `…` */
+  /** cut longer visible text to this many characters, with `…` where it was cut */
   maxWidth?: number;
+  /**
+   * where to cut: "end" (the default) keeps the start; "middle" keeps both ends, for dotted ids whose last part
+   * tells them apart (`repeat-1.0.residual-1.gated-feed-forward-1` and `…-2` would both end `gated-feed-forwar…`)
+   */
+  cut?: "end" | "middle";
 }
 
 /** Options of {@link renderTable}. */
@@ -53,11 +58,16 @@ function cellText(cell: Cell): string {
   return typeof cell === "number" ? String(cell) : cell;
 }
 
-function truncate(text: string, maxWidth: number | undefined): string {
+function truncate(text: string, maxWidth: number | undefined, cut: "end" | "middle" = "end"): string {
   if (maxWidth === undefined || visibleWidth(text) <= maxWidth) return text;
   // cut on the plain text: a cut through an escape sequence would leave the terminal styled
   const plain = [...stripVTControlCharacters(text)];
-  return maxWidth <= 1 ? "…".slice(0, maxWidth) : plain.slice(0, maxWidth - 1).join("") + "…";
+  if (maxWidth <= 1) return "…".slice(0, maxWidth);
+  if (cut === "end") return plain.slice(0, maxWidth - 1).join("") + "…";
+  // two fifths of the room for the start, the rest for the end, where the distinguishing part of an id sits
+  const head = Math.floor(((maxWidth - 1) * 2) / 5);
+  const tail = maxWidth - 1 - head;
+  return plain.slice(0, head).join("") + "…" + plain.slice(plain.length - tail).join("");
 }
 
 function pad(text: string, width: number, align: "left" | "right"): string {
@@ -83,7 +93,7 @@ export function renderTable(
     if (row.length > columns.length) {
       throw new RangeError(`row ${index} has ${row.length} cells; the table has ${columns.length} columns`);
     }
-    return columns.map((column, c) => truncate(cellText(row[c]), column.maxWidth));
+    return columns.map((column, c) => truncate(cellText(row[c]), column.maxWidth, column.cut));
   });
   const aligns = columns.map((column, c): "left" | "right" => {
     const align = column.align ?? "auto";

@@ -41,6 +41,13 @@ describe("renderTable", () => {
     });
     expect(text).toBe("  1 abcd…\n");
   });
+  test("cut: middle keeps both ends, so ids that differ only at the end stay apart", () => {
+    const ids = ["repeat-1.0.residual-1.gated-feed-forward-1", "repeat-1.0.residual-1.gated-feed-forward-2"];
+    const lines = renderTable([{ title: "layer", maxWidth: 20, cut: "middle" }], ids.map((id) => [id]), { noHeader: true }).split("\n");
+    expect(lines.slice(0, 2)).toEqual(["repeat-…ed-forward-1", "repeat-…ed-forward-2"]);
+    // the default still cuts at the end
+    expect(renderTable([{ title: "layer", maxWidth: 20 }], [[ids[0]]], { noHeader: true })).toBe("repeat-1.0.residual…\n");
+  });
   test("empty rows give only the header", () => {
     expect(renderTable([{ title: "a" }], [])).toBe("a\n─\n");
   });
