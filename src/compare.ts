@@ -201,7 +201,7 @@ function explain(ranked: PlanOutcome[]): string[] {
   }
   for (const o of ranked) {
     if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely: ${o.firstProblem ?? "see its findings"}`);
-    else if (o.verdict === "at-risk") lines.push(`${o.plan.name} trains, with risks: ${o.firstProblem ?? "see its findings"}`);
+    else if (o.verdict === "at-risk") lines.push(`${o.plan.name} is expected to train, but at risk: ${o.firstProblem ?? "see its findings"}`);
   }
   return lines;
 }

@@ -28,6 +28,12 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
         const fitting = comparison.outcomes.find((o) => o.verdict === "fits");
         expect(comparison.explanation[1]).toEqual(fitting === undefined ? "No plan fits without a risk." : expect.stringContaining(fitting.plan.name));
       } else if (best.trainsSafely) expect(comparison.explanation[0]).toContain("expected to train safely");
+      // every line about a plan speaks of an expectation: a ranking rests on estimates, never "<plan> trains"
+      for (const o of comparison.outcomes) {
+        for (const line of comparison.explanation.filter((l) => l.startsWith(`${o.plan.name} `))) {
+          expect(line.slice(o.plan.name.length)).toMatch(/^ is (the cheapest plan|expected to train|not expected to)/);
+        }
+      }
       // plans that train safely come before those that do not, and among them the cheapest first
       const safe = comparison.outcomes.filter((o) => o.trainsSafely);
       expect(comparison.outcomes.slice(0, safe.length)).toEqual(safe);
