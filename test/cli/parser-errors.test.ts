@@ -20,6 +20,8 @@ const CASES: [string[], string][] = [
   // round reads unknown options itself (its values may start with "-"), in the same words
   [["round", "1", "--jsn"], 'headroom: unknown option "--jsn" (did you mean "--json"?)'],
   [["round", "1", "--xyz"], 'headroom: unknown option "--xyz"; see headroom round --help (values may be decimal numbers, inf, nan or 0x patterns)'],
+  // after "--" a known option is a value: not "unknown option "--to" (did you mean "--to"?)"
+  [["round", "--", "-1", "--to", "e4m3"], 'headroom: "--to" came after "--", where every word is a value; put the options before "--"'],
   // "chek" is "check" less one letter
   [["chek", SPEC], 'headroom: unknown command "chek" (did you mean "check"?)'],
   [["xyzzy"], 'headroom: unknown command "xyzzy"; see headroom --help'],

@@ -49,6 +49,10 @@ export function unknownOptionMessage(flag: string, command: Command, note = ""):
   }
   // compared without the dashes every candidate shares (they would widen the distance allowed) and without a value
   const word = /^--([^=]+)/.exec(flag)?.[1];
+  // a known option is only refused as a value: it came after "--", which ends the options
+  if (word !== undefined && names.includes(word)) {
+    return `${JSON.stringify(flag)} came after "--", where every word is a value; put the options before "--"`;
+  }
   const hint = word === undefined ? "" : didYouMean(word, names).replace(/"([^"]+)"/, '"--$1"');
   return `unknown option ${JSON.stringify(flag)}${hint === "" ? `; see ${commandPath(command)} --help${note}` : hint}`;
 }
