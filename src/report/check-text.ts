@@ -200,6 +200,11 @@ export function tensorRows(result: CheckResult, all: boolean): { tensor: TensorC
   return [...rows.filter((row) => row.risk.verdict === "fails"), ...rows.filter((row) => row.risk.verdict !== "fails")];
 }
 
+/** "at risk", or with failing rows among them "at risk or failing (N fail)": a failing row is not merely at risk. */
+function atRiskOrFailing(failing: number): string {
+  return failing === 0 ? "at risk" : `at risk or failing (${failing} ${failing === 1 ? "fails" : "fail"})`;
+}
+
 /** Rows shown without --all. */
 export const TENSOR_ROW_LIMIT = 30;
 
@@ -264,7 +269,8 @@ export function renderHazards(hazards: readonly HazardCheck[], all: boolean, wid
     out += wrap(evaluation.sentence, width, head, "      ");
   }
   if (shown.length < rows.length) {
-    out += style.role("muted", `  ${rows.length} operation checks at risk, the first ${shown.length} shown (failing first); --all lists every one.`) + "\n";
+    const failing = rows.filter((row) => row.evaluation.verdict === "fails").length;
+    out += style.role("muted", `  ${rows.length} operation checks ${atRiskOrFailing(failing)}, the first ${shown.length} shown (failing first); --all lists every one.`) + "\n";
   }
   return out;
 }
@@ -323,7 +329,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
       const more = rows.length - shown.length;
       out += style.role(
         "muted",
-        `  ${rows.length} of ${judgedCount} at risk${more > 0 ? `, the first ${shown.length} shown (failing first)` : ""}; --all lists every tensor.`,
+        `  ${rows.length} of ${judgedCount} ${atRiskOrFailing(rows.filter((row) => row.risk.verdict === "fails").length)}${more > 0 ? `, the first ${shown.length} shown (failing first)` : ""}; --all lists every tensor.`,
       ) + "\n";
     }
   }

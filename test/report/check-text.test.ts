@@ -40,6 +40,19 @@ describe("the verdict per format counts in words", () => {
   });
 });
 
+describe("the count under the tables", () => {
+  it("says how many of the rows fail, not only that they are at risk", () => {
+    const result = check(example("deep-sigmoid.yaml"));
+    const judged = result.tensors.flatMap((t) => t.risks.filter((r) => r.judged));
+    const failing = judged.filter((r) => r.verdict === "fails").length;
+    const flagged = judged.filter((r) => r.verdict !== "fits").length;
+    expect(failing).toBeGreaterThan(0);
+    expect(renderCheckText(result, { width: 400 })).toContain(`  ${flagged} of ${judged.length} at risk or failing (${failing} fail), the first 30 shown`);
+    const fitting = check(example("cnn-batchnorm.yaml"));
+    expect(renderCheckText(fitting, { width: 400 })).not.toContain("or failing");
+  });
+});
+
 describe("hazard lines name the kind of their site", () => {
   it("labels the epsilon line 'optimizer epsilon' and the second-moment line 'optimizer second moment'", () => {
     const lines = renderCheckText(check(example("deep-relu-he.yaml")), { all: true, width: 400 }).split("\n");
@@ -157,7 +170,7 @@ describe("the operation hazards of a deep network (renderHazards)", () => {
     expect(lines[1]).toContain("loss-b");
     // the network's order within a verdict
     expect(lines[2]).toContain("block-0,");
-    expect(text).toContain(`32 operation checks at risk, the first ${HAZARD_ROW_LIMIT} shown (failing first); --all lists every one.`);
+    expect(text).toContain(`32 operation checks at risk or failing (2 fail), the first ${HAZARD_ROW_LIMIT} shown (failing first); --all lists every one.`);
   });
 
   it("shows every one with --all, in the network's order", () => {
