@@ -303,7 +303,7 @@ function checkPlan(plan: Record<string, unknown>, path: Path, found: Found): voi
     found.errors.push({
       path: [...path, "accumulate"],
       atKey: false,
-      message: `products cannot accumulate in ${accumulate}: use binary16, bfloat16, binary32 or binary64`,
+      message: `products cannot accumulate in ${accumulate}: use binary16, bfloat16, tf32, binary32 or binary64`,
     });
   }
   const uses8bit = PLAN_ROLES.some((role) => typeof plan[role] === "string" && EIGHT_BIT.has(plan[role] as string));
