@@ -9,6 +9,7 @@ import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
 import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
+import { formatValue } from "./number.js";
 
 /** Options of {@link renderCheckMarkdown}. */
 export interface CheckMarkdownOptions {
@@ -62,6 +63,11 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   const named = namesGradientFormats(result);
   if (scales.length === 0) out += lossScaleLine("Loss scale", { status: "not-evaluated" });
   else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s);
+  // a scale given by the plan or the command line is the one judged, whatever the window's pick: say so
+  const applied = result.lossScale;
+  if (applied.origin === "plan" || applied.origin === "option") {
+    out += `\nGradients judged at the loss scale ${formatValue(applied.value)} (from ${applied.origin === "plan" ? "the plan" : "the command line"}).\n`;
+  }
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
 }

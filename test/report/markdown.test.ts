@@ -1,4 +1,8 @@
+import { readFileSync } from "node:fs";
 import { describe, expect, test } from "vitest";
+import { check } from "../../src/check.js";
+import { renderCheckMarkdown } from "../../src/report/markdown-check.js";
+import { parseSpec } from "../../src/spec/index.js";
 import { escapeMarkdown, markdownCode, markdownTable } from "../../src/report/markdown.js";
 
 describe("escapeMarkdown", () => {
@@ -44,5 +48,28 @@ describe("markdownTable", () => {
   });
   test("refuses rows longer than the columns", () => {
     expect(() => markdownTable([{ title: "a" }], [["x", "y"]])).toThrow(RangeError);
+  });
+});
+
+describe("renderCheckMarkdown names the loss scale it judged", () => {
+  const spec = (() => {
+    const parsed = parseSpec(readFileSync("specs/transformer-encoder.yaml", "utf8"), "specs/transformer-encoder.yaml");
+    if (!parsed.ok) throw new Error("the example does not parse");
+    return parsed.spec;
+  })();
+
+  test("a plan's own loss scale is said beside the window's pick, which it may differ from", () => {
+    const result = check(spec, { plan: "mixed-binary16" });
+    expect(result.lossScale).toMatchObject({ origin: "plan", value: 1024 });
+    const md = renderCheckMarkdown(result);
+    expect(md).toContain("\nGradients judged at the loss scale 1024 (from the plan).\n");
+    expect(md).toMatch(/\nLoss scale: pick 2\^\d+, window/);
+  });
+
+  test("a scale given on the command line is said too; a recommended one is the pick and needs no line", () => {
+    expect(renderCheckMarkdown(check(spec, { plan: "mixed-binary16", lossScale: 4096 }))).toContain("\nGradients judged at the loss scale 4096 (from the command line).\n");
+    const recommended = check(spec, { formats: ["binary16"] });
+    expect(recommended.lossScale.origin).toBe("recommended");
+    expect(renderCheckMarkdown(recommended)).not.toContain("Gradients judged at");
   });
 });
