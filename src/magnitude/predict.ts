@@ -547,8 +547,11 @@ function assumptions(spec: NetworkSpec): string[] {
     "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
-    "Token ids are taken as used uniformly when spreading embedding gradients over the table's rows; frequent tokens get larger rows, rare ones smaller.",
   ];
+  // only token input has an embedding table (specs/README: an embedding must be the first layer, on token input)
+  if (spec.input.kind === "tokens") {
+    list.push("Token ids are taken as used uniformly when spreading embedding gradients over the table's rows; frequent tokens get larger rows, rare ones smaller.");
+  }
   if (t.accumulationSteps > 1) list.push(`Each of the ${t.accumulationSteps} accumulation steps divides its loss by ${t.accumulationSteps} (common practice), so every gradient of one backward pass is ${t.accumulationSteps} times smaller.`);
   if (t.workers > 1) list.push(`The ${t.workers} workers' gradients are summed${t.workerGradients === "average" ? " and then divided by the worker count" : ""}; the reported weight gradient is the combined one, and the gradient-sum hazard shows the sum before any division.`);
   if (t.horizon.finalLoss === undefined) list.push("No final loss is given, so gradients are assumed not to shrink by the end of the horizon.");

@@ -279,3 +279,13 @@ describe("the example specs", () => {
     expect(p.assumptions.length).toBeGreaterThan(3);
   });
 });
+
+describe("the assumptions listed", () => {
+  test("name the token-use assumption only for a network that looks up tokens", () => {
+    const token = /^Token ids are taken as used uniformly/;
+    const mlp = run(makeSpec([dense("hidden", 32, he), act("relu", "relu"), dense("out", 8, lecun)], { loss: crossEntropy(8) }));
+    expect(mlp.assumptions.some((a) => token.test(a))).toBe(false);
+    const lookup = run(makeSpec([embedding("e", 4096, 16), dense("out", 8, lecun)], { input: tokens(32), loss: crossEntropy(8) }));
+    expect(lookup.assumptions.some((a) => token.test(a))).toBe(true);
+  });
+});
