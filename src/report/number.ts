@@ -28,6 +28,8 @@ export function formatProbability(p: number): string {
   if (Number.isNaN(p) || p < 0 || p > 1) return NOT_A_NUMBER;
   if (p === 0) return "0";
   if (p === 1) return "1";
+  // integrated to 1e-12 absolute (README, "Estimates"): smaller values have no resolved digit
+  if (p < 1e-12) return "<1e-12";
   if (p < 0.01) return p.toExponential(1);
   const text = trimZeros(p.toPrecision(2));
   // 0.995 and above would round up to "1.0", which would read as certainty

@@ -11,7 +11,7 @@ import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js"
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentSides, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { plainNumber, scaleWords, sharePercent } from "./words.js";
+import { plainNumber, probabilityWords, scaleWords, sharePercent } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -310,14 +310,14 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case SOFTMAX_EXP:
       return (
         `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
-        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${plainNumber(value)} per step ` +
+        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${probabilityWords(value)} per step ` +
         `(${verdictWord(verdict)}).`
       );
     case NORM_SUM:
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
         `input rms exceeds ${plainNumber(draft.criticalLevel as number)} (predicted ${plainNumber(draft.extra)}); probability ` +
-        `${plainNumber(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
+        `${probabilityWords(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`
       );
     case ACCUMULATION_ERROR:
@@ -328,19 +328,19 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case ACCUMULATION_OVERFLOW:
       return (
         `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
-        `${plainNumber(value)} per step (${verdictWord(verdict)}).`
+        `${probabilityWords(value)} per step (${verdictWord(verdict)}).`
       );
     case LOSS_VALUE:
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
         `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(draft.criticalLevel as number)} ` +
-        `(predicted ${plainNumber(draft.extra)}); probability ${plainNumber(value)} per step` +
+        `(predicted ${plainNumber(draft.extra)}); probability ${probabilityWords(value)} per step` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
     case GRADIENT_SUM_OVERFLOW:
       return (
         `The sum of ${Math.max(1, site.terms)} gradient contributions of ${site.layer} (rms ${plainNumber(draft.extra)} after the loss ` +
-        `scale) overflows ${format} with probability ${plainNumber(value)} per step (${verdictWord(verdict)}).`
+        `scale) overflows ${format} with probability ${probabilityWords(value)} per step (${verdictWord(verdict)}).`
       );
     case GRADIENT_SUM_FLUSH:
       return (

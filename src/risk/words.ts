@@ -102,6 +102,18 @@ export function percent(x: number): string {
 const SHARE_FLOOR = 1e-8;
 const BELOW_SHARE_FLOOR = "less than 1e-6%";
 
+// The per-step probabilities are integrated to 1e-12 absolute below 1e-6 (README, "Estimates"): below 1e-12 their
+// digits are not resolved, so a sentence gives only that bound (display only; results keep the value)
+const PROBABILITY_FLOOR = 1e-12;
+
+/**
+ * A per-step probability as {@link plainNumber} writes it, or "less than 1e-12" below the integration's resolution.
+ * @example probabilityWords(6.75e-130) // => "less than 1e-12"; probabilityWords(0.0123) // => "0.0123"
+ */
+export function probabilityWords(p: number): string {
+  return p > 0 && p < PROBABILITY_FLOOR ? "less than 1e-12" : plainNumber(p);
+}
+
 /**
  * "less than 1e-6%" for a positive share below the display floor (1e-8), otherwise undefined: for a caller with
  * its own digits for larger shares.

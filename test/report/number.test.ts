@@ -24,7 +24,10 @@ describe("formatBinades", () => {
 describe("formatProbability", () => {
   test("exponent form below 0.01", () => {
     expect(formatProbability(0.000032)).toBe("3.2e-5");
-    expect(formatProbability(1e-300)).toBe("1.0e-300");
+    expect(formatProbability(1e-12)).toBe("1.0e-12");
+    // below the 1e-12 the per-step probabilities are integrated to (README, Estimates), no digit is resolved
+    expect(formatProbability(1e-300)).toBe("<1e-12");
+    expect(formatProbability(4.2e-232)).toBe("<1e-12");
     expect(formatProbability(0.0099)).toBe("9.9e-3");
   });
   test("two significant digits from 0.01 up; 0 and 1 exact; never rounds up to certainty", () => {

@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { binades, percent, plainNumber, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
+import { binades, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
 
 // The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
 // (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
@@ -81,6 +81,14 @@ describe("modelled shares in sentences", () => {
 });
 
 describe("other wording", () => {
+  it("a per-step probability below 1e-12, the integration's absolute resolution (README, Estimates), is given only as that bound", () => {
+    expect(probabilityWords(6.75e-130)).toBe("less than 1e-12");
+    expect(probabilityWords(9.96e-14)).toBe("less than 1e-12");
+    expect(probabilityWords(1e-12)).toBe("1e-12");
+    expect(probabilityWords(4.72e-5)).toBe("4.72e-5");
+    expect(probabilityWords(0)).toBe("0");
+  });
+
   it("percent, binades and scales", () => {
     expect(percent(0.0123)).toBe("1.23%");
     // a share short of all is never written as 100% (it would read as certainty; common practice)
