@@ -465,7 +465,7 @@ function buildSchemas(z: typeof Zod) {
       .default("saturate"),
     "flush-subnormals": z
       .boolean()
-      .describe("Whether results below the smallest normal become zero (default false)")
+      .describe("Whether results below the smallest normal become zero (default false); bfloat16 is judged flushing them either way")
       .default(false),
     scaling: z
       .enum(PLAN_SCALINGS)
