@@ -159,18 +159,30 @@ function dedupe(issues: SpecIssue[]): SpecIssue[] {
   });
 }
 
+const FOLDER_MESSAGE = "a folder, not a spec file: a spec is one .yaml, .yml or .json file (headroom batch checks every spec in a folder)";
+
+async function isFolder(path: string): Promise<boolean> {
+  try {
+    return (await stat(path)).isDirectory();
+  } catch {
+    return false;
+  }
+}
+
 /**
  * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
  * file: that too comes back as an issue.
  */
 export async function loadSpec(path: string): Promise<SpecResult> {
+  // a folder given where a spec is expected: say so, not that it lacks an extension
+  if (await isFolder(path)) return wholeFile(path, FOLDER_MESSAGE);
   if (!/\.(ya?ml|json)$/i.test(path)) {
     const extension = /\.[^./\\]*$/.exec(path)?.[0];
     return wholeFile(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
   }
   try {
     const info = await stat(path);
-    if (!info.isFile()) return wholeFile(path, "not a file");
+    if (!info.isFile()) return wholeFile(path, info.isDirectory() ? FOLDER_MESSAGE : "not a file");
     if (info.size > MAX_SPEC_BYTES) {
       return wholeFile(path, `the file has ${info.size} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
     }
@@ -180,7 +192,7 @@ export async function loadSpec(path: string): Promise<SpecResult> {
     const code = (error as { code?: unknown }).code;
     if (code === "ENOENT") return wholeFile(path, "no such file");
     if (code === "EACCES" || code === "EPERM") return wholeFile(path, "permission denied");
-    if (code === "EISDIR") return wholeFile(path, "not a file");
+    if (code === "EISDIR") return wholeFile(path, FOLDER_MESSAGE);
     if (typeof code === "string") return wholeFile(path, `cannot read the file (${code})`);
     throw error;
   }

@@ -334,6 +334,12 @@ describe("loadSpec(path)", () => {
     expect(!missing.ok && missing.issues.map(formatSpecIssue)).toEqual([`${valid}no-such-spec.yaml: no such file`]);
     const folder = await loadSpec(`${valid}.yaml`);
     expect(folder.ok).toBe(false);
+    // a folder is named as one, not as a file without an extension
+    const folderMessage = "a folder, not a spec file: a spec is one .yaml, .yml or .json file (headroom batch checks every spec in a folder)";
+    for (const path of [valid, valid.replace(/\/$/, "")]) {
+      const result = await loadSpec(path);
+      expect(!result.ok && result.issues.map((issue) => issue.message)).toEqual([folderMessage]);
+    }
   });
 
   it("refuses a file above the size cap without reading it", async () => {
