@@ -59,8 +59,17 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     out += "  (the prediction has no factors for this tensor)\n";
   } else {
     let running = 0;
+    // sources are cited by number and listed in full under the table: cut to a column they lost the citation itself
+    const sources: string[] = [];
+    const sourceNumber = new Map<string, number>();
     const rows = ledger.map((entry, index) => {
       running += entry.log2Factor;
+      let number = sourceNumber.get(entry.source);
+      if (number === undefined) {
+        sources.push(entry.source);
+        number = sources.length;
+        sourceNumber.set(entry.source, number);
+      }
       return [
         String(index + 1),
         entry.layer,
@@ -68,7 +77,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
         `×${formatValue(2 ** entry.log2Factor, 3)}`,
         twoDecimals(running),
         entry.rule,
-        entry.source,
+        `[${number}]`,
       ];
     });
     out += renderTable(
@@ -79,11 +88,13 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
         { title: "multiplier", align: "right" },
         { title: "running log2", align: "right" },
         { title: "rule", maxWidth: 60 },
-        { title: "source", maxWidth: 48 },
+        { title: "source", align: "left" },
       ],
       rows,
       { indent: "  ", styleHeader: (text) => style.role("strong", text) },
     );
+    out += "  Sources:\n";
+    for (let i = 0; i < sources.length; i++) out += wrap(sources[i] as string, width, `    [${i + 1}] `, "        ");
     const total = ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);
     out += wrap(
       `The factors multiply to 2^${total.toFixed(2)} = ${formatValue(2 ** total)}; the predicted rms at the start is ` +

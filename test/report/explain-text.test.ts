@@ -58,3 +58,17 @@ describe("renderExplainText", () => {
     expect(rows[0]).toMatch(/-4\.29 +×0\.0511 +0\.00 /);
   });
 });
+
+describe("renderExplainText sources", () => {
+  it("cites each source by number in the table and gives it in full below, however long", () => {
+    const tensor = result.tensors.find((t) => t.id === "dense-0/activation-gradient")!;
+    const ledger = tensor.ledger ?? [];
+    expect(ledger.length).toBeGreaterThan(0);
+    const text = renderExplainText(result, tensor, { width: 1000 });
+    const distinct = [...new Set(ledger.map((e) => e.source))];
+    distinct.forEach((source, i) => expect(text).toContain(`\n    [${i + 1}] ${source}\n`));
+    const rows = text.split("\n").filter((line) => /^ +\d+ {2}/.test(line));
+    expect(rows).toHaveLength(ledger.length);
+    rows.forEach((row, i) => expect(row.trimEnd().endsWith(`[${distinct.indexOf(ledger[i]!.source) + 1}]`)).toBe(true));
+  });
+});
