@@ -7,6 +7,7 @@ import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowBounds, energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
 import { lossScaleCurveParts } from "../risk/curve-parts.js";
+import { riskProfile } from "../risk/tensor.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
@@ -268,11 +269,28 @@ class HorizonPoint {
   profile(i: number): MagnitudeProfile {
     let p = this.profiles[i];
     if (p === undefined) {
-      p = profileAt(this.gradients[i]!, this.progress);
+      p = fixedProfileAt(this.gradients[i]!, this.progress);
       this.profiles[i] = p;
     }
     return p;
   }
+}
+
+// profileAt's values in the one layout the risk functions see (src/risk/tensor.ts riskProfile): the same numbers,
+// without copying every field the prediction carries
+function fixedProfileAt(tensor: TensorPrediction, progress: number): MagnitudeProfile {
+  const from = progress <= 0 ? tensor.start : progress >= 1 ? tensor.end : undefined;
+  if (from !== undefined) return riskProfile(from);
+  const { start, end } = tensor;
+  return {
+    elements: start.elements,
+    zeroFraction: start.zeroFraction,
+    shape: start.shape,
+    rms: start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms,
+    log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress,
+    bound: start.bound,
+    elementLog2Spread: start.elementLog2Spread,
+  };
 }
 
 /**
