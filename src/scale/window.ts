@@ -595,10 +595,36 @@ class WindowSearch {
   }
 }
 
-// Tensor indices by a key, smallest first (stable): the order in which the searches integrate.
-function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
-  const keys = tensors.map(key);
-  return Array.from(tensors.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
+/** Tensor indices by a key, smallest first (stable): the order in which the searches integrate (exported for tests). */
+export function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
+  const n = tensors.length;
+  const keys = new Float64Array(n);
+  let low = Infinity;
+  let high = -Infinity;
+  let whole = true;
+  for (let i = 0; i < n; i++) {
+    const k = key(tensors[i] as ScaledTensorCurves);
+    keys[i] = k;
+    if (!Number.isInteger(k)) whole = false;
+    if (k < low) low = k;
+    if (k > high) high = k;
+  }
+  if (n === 0) return [];
+  if (!whole || high - low > 4 * n + 64) return Array.from(tensors.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
+  // whole-exponent keys over a short range: a counting sort, stable, so ties stay in index order as in the sort above
+  const starts = new Int32Array(high - low + 2);
+  for (let i = 0; i < n; i++) {
+    const j = (keys[i] as number) - low + 1;
+    starts[j] = (starts[j] as number) + 1;
+  }
+  for (let j = 1; j < starts.length; j++) starts[j] = (starts[j] as number) + (starts[j - 1] as number);
+  const order = new Array<number>(n);
+  for (let i = 0; i < n; i++) {
+    const j = (keys[i] as number) - low;
+    order[starts[j] as number] = i;
+    starts[j] = (starts[j] as number) + 1;
+  }
+  return order;
 }
 
 /**

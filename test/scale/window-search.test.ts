@@ -3,7 +3,7 @@
 // reference below is that definition, written out directly; the curves are random monotone ones with valid bounds.
 import * as fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { lossScaleWindow, lossScaleWindows, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
+import { lossScaleWindow, lossScaleWindows, priorityOrder, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
 
 const LOW = -12;
 const HIGH = 12;
@@ -129,5 +129,41 @@ describe("lossScaleWindow searches", () => {
     expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
     // the most flush-prone tensor is the last one (its curve sits furthest right), the most overflow-prone the first
     expect([w.lowerEdgeSetBy, w.upperEdgeSetBy]).toEqual(["layer299", "layer0"]);
+  });
+});
+
+// The searches visit tensors by a priority order: by key, ties by index. The reference is a plain comparison sort
+// (common practice); the order packs whole keys over a short range into a counting sort, others take the sort itself.
+describe("priorityOrder", () => {
+  const curvesWith = (keys: readonly (number | null)[]): ScaledTensorCurves[] =>
+    keys.map((k, i) => ({
+      id: `t${i}`,
+      overflowRisk: () => 0,
+      flushedEnergy: () => 0,
+      ...(k === null ? {} : { edgeGuessesLog2: { overflow: k, flush: -k } }),
+    }));
+  const reference = (keys: readonly number[]) => Array.from(keys.keys()).sort((a, b) => keys[a]! - keys[b]! || a - b);
+  const key = (t: ScaledTensorCurves) => t.edgeGuessesLog2?.overflow ?? 0;
+
+  it("orders by key, ties by index, for whole keys near together or far apart, fractions and missing guesses", () => {
+    const keyArb = fc.oneof(
+      fc.integer({ min: -60, max: 60 }),
+      fc.integer({ min: -(2 ** 40), max: 2 ** 40 }),
+      fc.double({ min: -100, max: 100, noNaN: true }),
+      fc.constant(null),
+    );
+    fc.assert(
+      fc.property(fc.array(keyArb, { maxLength: 80 }), (raw) => {
+        const tensors = curvesWith(raw);
+        expect(priorityOrder(tensors, key)).toEqual(reference(tensors.map(key)));
+        expect(priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0))).toEqual(reference(tensors.map((t) => -(t.edgeGuessesLog2?.flush ?? 0))));
+      }),
+    );
+  });
+
+  it("handles no tensors and infinite keys", () => {
+    expect(priorityOrder([], key)).toEqual([]);
+    const tensors = curvesWith([3, -Infinity, 3, Infinity, -2]);
+    expect(priorityOrder(tensors, key)).toEqual([1, 4, 0, 2, 3]);
   });
 });
