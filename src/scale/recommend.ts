@@ -6,7 +6,7 @@ import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowBounds, energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
-import { lossScaleCurveParts } from "../risk/curve-parts.js";
+import { lossScaleCurveParts, type LossScaleCurveParts } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
@@ -127,59 +127,92 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
  */
 export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
   // the window keeps values and bounds itself: the parts without memos
-  return lossScaleCurveParts(tensors, limits).map((c) => {
-    const { start, end, same } = c;
-    // each profile's segment upper bound at the exponent last asked (the window asks for a tensor's bound and then
-    // its value at one exponent; it keeps both itself, src/scale/window.ts)
-    const lastUppers = (upper: (p: MagnitudeProfile, t: number) => number, level: number) => {
-      let lastK = NaN;
-      let pair: readonly [number, number] = [1, 1];
-      return (k: number): readonly [number, number] => {
-        if (k !== lastK) {
-          const t = level * 2 ** -k;
-          const a = upper(start, t);
-          pair = [a, same ? a : upper(end, t)];
-          lastK = k;
-        }
-        return pair;
-      };
-    };
-    const overflowUpper = lastUppers(probabilityAnyAboveUpper, limits.overflowLevel);
-    const flushUpper = lastUppers(energyBelowUpper, limits.flushBound);
-    // the worse of f(start) and f(end), as the curves take it, skipping the profile whose upper bound is below the
-    // other's value (the larger of two values is the one the other cannot reach)
-    const worse = (f: (p: MagnitudeProfile) => number, bounds: (k: number) => readonly [number, number], k: number): number => {
-      if (same) return f(start);
-      const uppers = bounds(k);
-      const startFirst = uppers[0] >= uppers[1];
-      const a = f(startFirst ? start : end);
-      if ((startFirst ? uppers[1] : uppers[0]) <= a) return a;
-      // the first value is kept, not integrated again (max is symmetric, so the order of the two does not matter)
-      return Math.max(a, f(startFirst ? end : start));
-    };
-    return {
-      id: c.id,
-      edgeGuessesLog2: c.edgeGuessesLog2,
-      overflowRisk(k) {
-        const level = limits.overflowLevel * 2 ** -k;
-        return worse((p) => probabilityAnyAbove(p, level), overflowUpper, k);
-      },
-      flushedEnergy(k) {
-        const bound = limits.flushBound * 2 ** -k;
-        return worse((p) => energyBelow(p, bound), flushUpper, k);
-      },
-      overflowRiskBounds: c.overflowRiskBounds,
-      flushedEnergyBounds: c.flushedEnergyBounds,
-      overflowRiskUpper(k) {
-        const [a, b] = overflowUpper(k);
-        return Math.max(a, b);
-      },
-      flushedEnergyUpper(k) {
-        const [a, b] = flushUpper(k);
-        return Math.max(a, b);
-      },
-    };
-  });
+  return lossScaleCurveParts(tensors, limits).map((c) => new BoundedCurves(c, limits));
+}
+
+// One tensor's curves of boundedLossScaleCurves: the parts' profiles and bounds, and each profile's segment upper
+// bounds at the exponent last asked (the window asks for a tensor's bound and then its value at one exponent; it keeps
+// both itself, src/scale/window.ts). One object per tensor, its methods shared.
+class BoundedCurves implements ScaledTensorCurves {
+  readonly id: string;
+  readonly edgeGuessesLog2: { overflow: number; flush: number };
+  private readonly start: MagnitudeProfile;
+  private readonly end: MagnitudeProfile;
+  private readonly same: boolean;
+  private overflowK = NaN;
+  private overflowStart = 1;
+  private overflowEnd = 1;
+  private flushK = NaN;
+  private flushStart = 1;
+  private flushEnd = 1;
+
+  constructor(
+    private readonly parts: LossScaleCurveParts,
+    private readonly limits: RangeLimits,
+  ) {
+    this.id = parts.id;
+    this.edgeGuessesLog2 = parts.edgeGuessesLog2;
+    this.start = parts.start;
+    this.end = parts.end;
+    this.same = parts.same;
+  }
+
+  private overflowUppers(k: number): void {
+    if (k === this.overflowK) return;
+    const t = this.limits.overflowLevel * 2 ** -k;
+    this.overflowStart = probabilityAnyAboveUpper(this.start, t);
+    this.overflowEnd = this.same ? this.overflowStart : probabilityAnyAboveUpper(this.end, t);
+    this.overflowK = k;
+  }
+
+  private flushUppers(k: number): void {
+    if (k === this.flushK) return;
+    const t = this.limits.flushBound * 2 ** -k;
+    this.flushStart = energyBelowUpper(this.start, t);
+    this.flushEnd = this.same ? this.flushStart : energyBelowUpper(this.end, t);
+    this.flushK = k;
+  }
+
+  // The worse of the start and end values, as the curves take it, skipping the profile whose upper bound is below the
+  // other's value (the larger of two values is the one the other cannot reach); the first value is kept, not
+  // integrated again (max is symmetric, so the order of the two does not matter).
+  overflowRisk(k: number): number {
+    const level = this.limits.overflowLevel * 2 ** -k;
+    if (this.same) return probabilityAnyAbove(this.start, level);
+    this.overflowUppers(k);
+    const startFirst = this.overflowStart >= this.overflowEnd;
+    const a = probabilityAnyAbove(startFirst ? this.start : this.end, level);
+    if ((startFirst ? this.overflowEnd : this.overflowStart) <= a) return a;
+    return Math.max(a, probabilityAnyAbove(startFirst ? this.end : this.start, level));
+  }
+
+  flushedEnergy(k: number): number {
+    const bound = this.limits.flushBound * 2 ** -k;
+    if (this.same) return energyBelow(this.start, bound);
+    this.flushUppers(k);
+    const startFirst = this.flushStart >= this.flushEnd;
+    const a = energyBelow(startFirst ? this.start : this.end, bound);
+    if ((startFirst ? this.flushEnd : this.flushStart) <= a) return a;
+    return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
+  }
+
+  overflowRiskBounds(k: number): readonly [number, number] {
+    return this.parts.overflowRiskBounds(k);
+  }
+
+  flushedEnergyBounds(k: number): readonly [number, number] {
+    return this.parts.flushedEnergyBounds(k);
+  }
+
+  overflowRiskUpper(k: number): number {
+    this.overflowUppers(k);
+    return Math.max(this.overflowStart, this.overflowEnd);
+  }
+
+  flushedEnergyUpper(k: number): number {
+    this.flushUppers(k);
+    return Math.max(this.flushStart, this.flushEnd);
+  }
 }
 
 /**
