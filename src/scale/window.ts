@@ -101,9 +101,23 @@ export function lossScaleWindows(
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
   const search = new WindowSearch(tensors, o);
+  // each id's tensors, made on the first set aside: a remedy sets aside a few tensors, looked up instead of testing
+  // every tensor against the set
+  let byId: Map<string, number[]> | undefined;
   return (setAside) => {
     const active = new Uint8Array(tensors.length).fill(1);
-    if (setAside !== undefined) tensors.forEach((t, i) => (active[i] = setAside.has(t.id) ? 0 : 1));
+    if (setAside !== undefined && setAside.size > 0) {
+      if (byId === undefined) {
+        const made = new Map<string, number[]>();
+        tensors.forEach((t, i) => {
+          const same = made.get(t.id);
+          if (same === undefined) made.set(t.id, [i]);
+          else same.push(i);
+        });
+        byId = made;
+      }
+      for (const id of setAside) for (const i of byId.get(id) ?? []) active[i] = 0;
+    }
     return search.window(active);
   };
 }
