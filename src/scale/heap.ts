@@ -4,17 +4,21 @@
  * The window search and the dynamic simulation both tighten the largest bound first with it.
  */
 export class IndexHeap {
-  private readonly items: number[] = [];
+  // the heap's indices in a typed array of the keys' length (an index is in the heap at most once), not a growing list
+  private readonly items: Int32Array;
+  private count = 0;
   constructor(
     private readonly keys: Float64Array,
     private readonly rank: Int32Array | null = null,
-  ) {}
+  ) {
+    this.items = new Int32Array(keys.length);
+  }
   get size(): number {
-    return this.items.length;
+    return this.count;
   }
   /** empty the heap, to be filled again over the same keys */
   clear(): void {
-    this.items.length = 0;
+    this.count = 0;
   }
   private above(a: number, b: number): boolean {
     const ka = this.keys[a]!;
@@ -22,10 +26,10 @@ export class IndexHeap {
     if (ka !== kb) return ka > kb;
     return this.rank === null ? a < b : this.rank[a]! < this.rank[b]!;
   }
+  /** add index i (in [0, keys.length), not in the heap already) */
   push(i: number): void {
     const items = this.items;
-    let j = items.length;
-    items.push(i);
+    let j = this.count++;
     while (j > 0) {
       const parent = (j - 1) >> 1;
       if (!this.above(i, items[parent]!)) break;
@@ -37,8 +41,8 @@ export class IndexHeap {
   pop(): number {
     const items = this.items;
     const top = items[0]!;
-    const last = items.pop()!;
-    const n = items.length;
+    const n = --this.count;
+    const last = items[n]!;
     if (n > 0) {
       let j = 0;
       for (;;) {
