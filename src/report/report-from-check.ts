@@ -80,7 +80,16 @@ function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
   const named = namesGradientFormats(result);
   return result.lossScales.map((item) => {
     const { format, ...summary } = itemSummary(item);
-    const model: ReportLossScale = { summary, notes: item.status === "not-needed" ? [] : item.answer.sentences };
+    // an empty window's first sentence is its reason, shown beside the status: not again among the notes; the
+    // remedies follow, worded as the terminal words them
+    const notes =
+      item.status === "not-needed"
+        ? []
+        : [
+            ...(item.status === "empty" ? item.answer.sentences.slice(1) : item.answer.sentences),
+            ...item.answer.remedies.map((remedy, i) => `${i + 1}. ${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`),
+          ];
+    const model: ReportLossScale = { summary, notes };
     if (named) model.format = format;
     return model;
   });

@@ -100,3 +100,28 @@ describe("the formats table of a report", () => {
     for (const t of [half, brain]) expect(t).not.toMatch(/<sup>16<\/sup>|<sup>128<\/sup>/);
   });
 });
+
+describe("the loss-scale section of a check with no static scale", () => {
+  test("gives the reason once and the remedies, as the terminal does", async () => {
+    const { readFileSync } = await import("node:fs");
+    const { parseSpec } = await import("../../src/spec/index.js");
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const parsed = parseSpec(readFileSync("specs/residual-mlp-unscaled.yaml", "utf8"), "specs/residual-mlp-unscaled.yaml");
+    if (!parsed.ok) throw new Error("the example does not parse");
+    const result = check(parsed.spec);
+    const item = result.lossScales[0]!;
+    expect(item.status).toBe("empty");
+    if (item.status === "not-needed") return;
+    const page = renderHtmlReport(reportModel(result, { version: "test" }));
+    // the loss-scale section alone (the verdict above it may name the same reason)
+    const html = page.slice(page.indexOf('<h2 id="scale">'), page.indexOf('<h2 id="ledger">'));
+    expect(html.length).toBeGreaterThan(0);
+    const reason = escapeHtml(item.answer.sentences[0]!);
+    expect(html.split(reason).length - 1).toBe(1);
+    expect(item.answer.remedies.length).toBeGreaterThan(0);
+    item.answer.remedies.forEach((remedy, i) => {
+      expect(html).toContain(escapeHtml(`${i + 1}. ${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`));
+    });
+  });
+});
