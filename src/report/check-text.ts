@@ -332,18 +332,19 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
         `  ${rows.length} of ${judgedCount} ${atRiskOrFailing(rows.filter((row) => row.risk.verdict === "fails").length)}${more > 0 ? `, the first ${shown.length} shown (failing first)` : ""}; --all lists every tensor.`,
       ) + "\n";
     }
+    // the legend of the table's columns, only under a table
+    out += style.role(
+      "muted",
+      wrap(
+        "rms and max are after the loss scale, at the start→end of the horizon; max is the level the largest element " +
+          `passes once in ${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom are in binades; ` +
+          "flushed is the share of nonzero elements that round to zero.",
+        width,
+        "  ",
+        "  ",
+      ).trimEnd(),
+    ) + "\n";
   }
-  out += style.role(
-    "muted",
-    wrap(
-      "rms and max are after the loss scale, at the start→end of the horizon; max is the level the largest element " +
-        `passes once in ${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom are in binades; ` +
-        "flushed is the share of nonzero elements that round to zero.",
-      width,
-      "  ",
-      "  ",
-    ).trimEnd(),
-  ) + "\n";
 
   const hazardText = renderHazards(result.hazards, all, width, style);
   const evaluationCount = result.hazards.reduce((n, h) => n + h.evaluations.length, 0);

@@ -53,6 +53,16 @@ describe("the count under the tables", () => {
   });
 });
 
+describe("the tensor table's legend", () => {
+  it("is printed under a table, and not after 'none of the tensors is at risk'", () => {
+    const legend = "rms and max are after the loss scale";
+    const none = renderCheckText(check(example("cnn-batchnorm.yaml")), { width: 400 });
+    expect(none).toContain("none of the 79 tensors is at risk.\n\nOperation hazards");
+    expect(none).not.toContain(legend);
+    expect(renderCheckText(check(example("deep-sigmoid.yaml")), { width: 400 })).toContain(legend);
+  });
+});
+
 describe("hazard lines name the kind of their site", () => {
   it("labels the epsilon line 'optimizer epsilon' and the second-moment line 'optimizer second moment'", () => {
     const lines = renderCheckText(check(example("deep-relu-he.yaml")), { all: true, width: 400 }).split("\n");
