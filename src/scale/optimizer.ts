@@ -435,7 +435,10 @@ function summarise(
     return "";
   };
   // a share below the risk sentences' display floor reads as they do ("less than 1e-6%"), not as the model's far tail
-  const pct = (x: number) => tinyShare(x) ?? `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
+  // a share short of all that would round to "100%" reads as certainty: "more than 99.9%" (common practice)
+  const digits = (x: number) => tinyShare(x) ?? `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
+  const pct = (x: number) => (x < 1 && digits(x) === "100%" ? "more than 99.9%" : digits(x));
+  const opening = (text: string) => text.charAt(0).toUpperCase() + text.slice(1);
   const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
   const master = plan.masterWeights !== "none";
   const into = master ? `the ${updateFormat.name} master copy` : `the stored ${weightFormat.name} weights`;
@@ -446,8 +449,9 @@ function summarise(
    * binary32 master copy only when binary32 is more precise than the format receiving the update.
    */
   function updateRemedies(u: UpdateLoss | null, weight: string, decayLoss: { ratio: number; lost: number } | null): string[] {
-    // a remedy must lose visibly less than the plan: never "100% lost instead of 100%"
-    const less = (share: number, planned: number) => share < planned && pct(share) !== pct(planned);
+    // a remedy must lose visibly less than the plan, at three digits: never "100% lost instead of 100%", nor
+    // "more than 99.9% lost instead of 100%"
+    const less = (share: number, planned: number) => share < planned && digits(share) !== digits(planned);
     // what a remedy does to each finding: a smaller share, or the same one still lost
     const effect = (updates: number, decaySteps: number) =>
       [
@@ -511,7 +515,7 @@ function summarise(
   if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
     const uncounted = raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk", updateFormat);
     reasons.push(
-      `${pct(worst.lostShare)} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
+      `${opening(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
     );
     const t = tensors.find((x) => x.weight === worst!.weight)!;
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
@@ -531,7 +535,7 @@ function summarise(
     const uncounted = raise(secondMoments.verdict, stateFormat);
     tell(
       "optimizer-second-moment",
-      `${pct(share)} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).${uncounted}`,
+      `${opening(pct(share))} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).${uncounted}`,
     );
     // binary32 states only where they flush less, on the same gradients
     if (inBinary32 !== null && inBinary32 < share) {

@@ -227,3 +227,19 @@ describe("no remedy repeats the plan", () => {
     });
   }
 });
+
+describe("checkOptimizer words a share short of all", () => {
+  it("says 'More than 99.9%' of the updates are lost, never 100%, when a few updates are kept", () => {
+    // Gaussian weights of rms 1 and Adam's first step lr = 2^-38 into a binary32 master copy: an update is kept
+    // only where it reaches half an ulp, |w| < 2^-38 · 2^24 = 2^-14 (IEEE 754-2019 binary32 p = 24), a share of about
+    // 2^-14·√(2/π) = 4.87e-5 of a standard normal (its density at 0), so about 0.99995 are lost
+    const gaussian: MagnitudeProfile = { elements: 1e6, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0 };
+    const gaussianPrediction: Prediction = { ...prediction(), tensors: [tensor("dense-0/weight", "weight", gaussian), tensor("dense-0/weight-gradient", "weight-gradient", constant(0.1))] };
+    const result = checkOptimizer(adam(2 ** -38), plan("binary16", "binary32"), gaussianPrediction);
+    const lost = result.tensors[0]!.updates[0]!.planned;
+    expect(1 - lost).toBeCloseTo(2 ** -14 * Math.sqrt(2 / Math.PI), 5);
+    expect(lost).toBeLessThan(1);
+    expect(result.reasons[0]).toMatch(/^More than 99\.9% of the updates to dense-0\/weight are lost/);
+    expect(result.remedies.join(" ")).toContain("lost instead of more than 99.9%");
+  });
+});
