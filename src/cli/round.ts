@@ -27,7 +27,15 @@ const HEX_PATTERN = /^0x[0-9a-f]{16}$/i;
  */
 export function parseValue(text: string): { value: number } | { error: string } {
   const trimmed = text.trim();
-  if (DECIMAL.test(trimmed)) return { value: Number(trimmed) };
+  if (DECIMAL.test(trimmed)) {
+    const value = Number(trimmed);
+    // a finite decimal past binary64's largest finite value reads as infinity there (IEEE 754-2019 §4.3.1, §7.4): say so
+    // rather than round an infinity and report no error
+    if (!Number.isFinite(value)) {
+      return { error: `${trimmed} is beyond binary64's range (largest finite ${String(Number.MAX_VALUE).replace("e+", "e")}), where values are read first; give inf for infinity` };
+    }
+    return { value };
+  }
   const special = SPECIAL.exec(trimmed);
   if (special) {
     const [, sign, word] = special;

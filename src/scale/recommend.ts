@@ -612,7 +612,7 @@ function rankRemedies(
       sentence: w.empty
         ? "bfloat16 gradients do not open a window either."
         : w.unscaledFits
-          ? `Store gradients in bfloat16: no loss scale needed (scales from 2^${w.lowestLog2} to 2^${w.highestLog2} all fit), at 8 significant bits instead of 11.`
+          ? `Store gradients in bfloat16: no loss scale needed (scales from 2^${w.lowestLog2} to 2^${w.highestLog2} all fit), at ${getFormat("bfloat16").precision} significant bits instead of ${getFormat(plan.gradients).precision}.`
           : `Store gradients in bfloat16: the window becomes 2^${w.lowestLog2} to 2^${w.highestLog2}.`,
     });
   }

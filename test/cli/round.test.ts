@@ -232,3 +232,16 @@ describe("a reader that stops early", () => {
     expect(run.stderr).toBe("");
   });
 });
+
+describe("round: a decimal past binary64's range", () => {
+  // binary64's largest finite value is (2 − 2^-52)·2^1023 ≈ 1.7976931348623157e308 (IEEE 754-2019 §3.6); 1e400 reads
+  // as infinity there, so rounding it further would report an infinity with no error
+  it("is refused with exit code 2, naming the range; inf is still accepted", () => {
+    const run = runCli(["round", "1e400", "--to", "binary16"]);
+    expect(run.status).toBe(2);
+    expect(run.stdout).toBe("");
+    expect(run.stderr).toContain("1e400 is beyond binary64's range (largest finite 1.7976931348623157e308)");
+    expect(runCli(["round", "inf", "--to", "binary16"]).status).toBe(0);
+    expect(runCli(["round", "1.7976931348623157e308", "--to", "binary16"]).status).toBe(0);
+  });
+});

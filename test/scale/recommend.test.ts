@@ -124,3 +124,19 @@ describe("the loss-scale answer's wording", () => {
     expect(dynamic.sentence).not.toContain("between 1 and 1");
   });
 });
+
+describe("the bfloat16 remedy names the precision it trades", () => {
+  // significant bits p (with the hidden bit): bfloat16 8, binary16 11 (IEEE 754-2019 Table 3.5 for binary16; bfloat16
+  // keeps binary32's exponent and 7 fraction bits, common practice), e5m2 3 (OCP 8-bit spec: 2 mantissa bits)
+  const constant = (rms: number): MagnitudeProfile => ({ elements: 1000, zeroFraction: 0, shape: "constant", rms, log2Spread: 0 });
+  const pair = prediction(gradient("large/activation-gradient", constant(2 ** 10)), gradient("tiny/activation-gradient", constant(2 ** -40)));
+  it.each([
+    ["binary16", 11],
+    ["e5m2", 3],
+  ] as const)("gradients in %s: 8 significant bits instead of %i", (format, bits) => {
+    const answer = lossScaleAnswer(pair, { ...plan, gradients: format }, { steps: 500 });
+    const remedy = answer.remedies.find((r) => r.kind === "bfloat16-gradients")!;
+    expect(remedy.works).toBe(true);
+    expect(remedy.sentence).toContain(`at 8 significant bits instead of ${bits}.`);
+  });
+});
