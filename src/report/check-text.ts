@@ -256,24 +256,48 @@ const HAZARD_WORDS: Readonly<Record<HazardCheck["kind"], string>> = {
 
 /** The hazards section: one line per evaluation that is not "fits" (every evaluation with `all`). */
 export function renderHazards(hazards: readonly HazardCheck[], all: boolean, width: number, style: Style = PLAIN): string {
-  const rows: { hazard: HazardCheck; evaluation: HazardCheck["evaluations"][number] }[] = [];
+  type Row = { hazard: HazardCheck; evaluation: HazardCheck["evaluations"][number] };
+  const rows: Row[] = [];
   for (const hazard of hazards) {
     for (const evaluation of hazard.evaluations) if (all || evaluation.verdict !== "fits") rows.push({ hazard, evaluation });
   }
-  // as the tensors: failing first (a stable sort keeps the network's order within a verdict), at most
-  // HAZARD_ROW_LIMIT without --all, so a deep network's repeated findings do not bury the rest
-  const shown = all ? rows : [...rows].sort((a, b) => Number(b.evaluation.verdict === "fails") - Number(a.evaluation.verdict === "fails")).slice(0, HAZARD_ROW_LIMIT);
-  let out = "";
-  for (const { hazard, evaluation } of shown) {
-    const head = `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${evaluation.layer ?? hazard.layer}, ${evaluation.format}: `;
-    out += wrap(evaluation.sentence, width, head, "      ");
+  const line = ({ hazard, evaluation }: Row): string =>
+    wrap(evaluation.sentence, width, `  ${verdictText(evaluation.verdict, style)}  ${HAZARD_WORDS[hazard.kind]}, ${evaluation.layer ?? hazard.layer}, ${evaluation.format}: `, "      ");
+  if (all) return rows.map(line).join("");
+  // as the tensors: failing first (a stable sort keeps the network's order within a verdict); checks of one kind, format
+  // and verdict (a norm in every block) show their first HAZARD_GROUP_LIMIT and a count, and at most HAZARD_ROW_LIMIT
+  // lines in all, so a deep network's repeated findings do not bury the rest
+  const ordered = [...rows].sort((a, b) => Number(b.evaluation.verdict === "fails") - Number(a.evaluation.verdict === "fails"));
+  const groups = new Map<string, Row[]>();
+  for (const row of ordered) {
+    const key = `${row.hazard.kind} ${row.evaluation.format} ${row.evaluation.verdict}`;
+    const group = groups.get(key);
+    if (group === undefined) groups.set(key, [row]);
+    else group.push(row);
   }
-  if (shown.length < rows.length) {
+  let out = "";
+  let shown = 0;
+  for (const group of groups.values()) {
+    if (shown >= HAZARD_ROW_LIMIT) break;
+    // "and 1 more" would take the line the one hidden takes: a group one over the limit is shown whole
+    const take = Math.min(group.length <= HAZARD_GROUP_LIMIT + 1 ? group.length : HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT - shown);
+    for (let i = 0; i < take; i++) out += line(group[i] as Row);
+    shown += take;
+    const first = group[0] as Row;
+    if (group.length > take) {
+      out += style.role("muted", `      and ${group.length - take} more ${HAZARD_WORDS[first.hazard.kind]} check${group.length - take === 1 ? "" : "s"} in ${first.evaluation.format} likewise.`) + "\n";
+    }
+  }
+  if (shown < rows.length) {
     const failing = rows.filter((row) => row.evaluation.verdict === "fails").length;
-    out += style.role("muted", `  ${rows.length} operation checks ${atRiskOrFailing(failing)}, the first ${shown.length} shown (failing first); --all lists every one.`) + "\n";
+    const summary = `${rows.length} operation checks ${atRiskOrFailing(failing)}, ${shown} shown (failing first, at most ${HAZARD_GROUP_LIMIT} of a kind); --all lists every one.`;
+    out += style.role("muted", wrap(summary, width, "  ", "  ").trimEnd()) + "\n";
   }
   return out;
 }
+
+/** Operation-hazard lines of one kind, format and verdict shown without --all. */
+export const HAZARD_GROUP_LIMIT = 3;
 
 /** Operation-hazard lines shown without --all. */
 export const HAZARD_ROW_LIMIT = 12;

@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
+import { HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -172,15 +172,28 @@ describe("the operation hazards of a deep network (renderHazards)", () => {
     hazard("loss-b", "fails", "loss-value"),
   ];
 
-  it("shows at most HAZARD_ROW_LIMIT, failing first, and says how many there are", () => {
+  it("shows failing checks first, at most HAZARD_GROUP_LIMIT of one kind, format and verdict, and says how many there are", () => {
     const text = renderHazards(hazards, false, 100);
     const lines = text.split("\n").filter((line) => /^ {2}(fails|at risk) {2}/.test(line));
-    expect(lines.length).toBe(HAZARD_ROW_LIMIT);
+    expect(lines.length).toBe(2 + HAZARD_GROUP_LIMIT);
+    expect(lines.length).toBeLessThanOrEqual(HAZARD_ROW_LIMIT);
     expect(lines[0]).toContain("loss-a");
     expect(lines[1]).toContain("loss-b");
-    // the network's order within a verdict
+    // the network's order within a group
     expect(lines[2]).toContain("block-0,");
-    expect(text).toContain(`32 operation checks at risk or failing (2 fail), the first ${HAZARD_ROW_LIMIT} shown (failing first); --all lists every one.`);
+    expect(lines[4]).toContain("block-2,");
+    expect(text).toContain(`      and ${30 - HAZARD_GROUP_LIMIT} more accumulation checks in binary16 likewise.`);
+    expect(text.replace(/\n +/g, " ")).toContain(
+      `32 operation checks at risk or failing (2 fail), ${2 + HAZARD_GROUP_LIMIT} shown (failing first, at most ${HAZARD_GROUP_LIMIT} of a kind); --all lists every one.`,
+    );
+  });
+
+  it("caps the lines at HAZARD_ROW_LIMIT over many kinds", () => {
+    const kinds = ["accumulation", "loss-value"] as const;
+    const many = Array.from({ length: 40 }, (_, i) => hazard(`layer-${i}`, "at-risk", kinds[i % 2] as "accumulation" | "loss-value"));
+    for (const [i, h] of many.entries()) (h.evaluations[0] as { format: string }).format = ["binary16", "bfloat16", "e4m3", "e5m2", "binary32"][i % 5]!;
+    const lines = renderHazards(many, false, 100).split("\n").filter((line) => /^ {2}(fails|at risk) {2}/.test(line));
+    expect(lines.length).toBe(HAZARD_ROW_LIMIT);
   });
 
   it("shows every one with --all, in the network's order", () => {
@@ -191,7 +204,10 @@ describe("the operation hazards of a deep network (renderHazards)", () => {
   });
 
   it("needs no summary line when every one is shown", () => {
-    expect(renderHazards(hazards.slice(0, 5), false, 100)).not.toContain("operation checks at risk");
+    expect(renderHazards(hazards.slice(0, HAZARD_GROUP_LIMIT), false, 100)).not.toContain("operation checks at risk");
+    expect(renderHazards(hazards.slice(0, HAZARD_GROUP_LIMIT), false, 100)).not.toContain("likewise");
+    // one over the limit: shown whole, not "and 1 more"
+    expect(renderHazards(hazards.slice(0, HAZARD_GROUP_LIMIT + 1), false, 100)).not.toContain("likewise");
   });
 });
 
