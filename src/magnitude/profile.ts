@@ -70,6 +70,22 @@ export function logNormalMedianLog2(rms: number, spread: number): number {
 }
 
 /**
+ * The widest log2 spread a log-normal of rms `rms` over n elements can have while its expected largest element
+ * (median + spread·E[max of n N(0,1)], SCIENCE.md §4) still reaches the bound, or the rms itself without one.
+ * Wider, the law's second moment sits in elements larger than any of the n, or than the bound: softmax
+ * probabilities whose E[p²] is held at 1/keys while the logits' spread grows without end (one key takes each
+ * row) gave a largest element of 0 at logit rms 450. At this spread the largest reaches the bound and most
+ * elements lie far below the rms, as concentrated probabilities do (common practice).
+ */
+export function widestLogNormalSpread(rms: number, bound: number | undefined, n: number): number {
+  const a = expectedMaxNormal(n);
+  // median = log2 rms − s²·ln 2 (logNormalMedianLog2); the largest at 2^L·rms solves ln 2·s² − a·s + L = 0
+  const L = bound !== undefined && bound > rms ? Math.log2(bound / rms) : 0;
+  const disc = a * a - 4 * Math.LN2 * L;
+  return disc >= 0 ? (a + Math.sqrt(disc)) / (2 * Math.LN2) : a / Math.LN2;
+}
+
+/**
  * expectedMaxAbsGaussian by whole element count, in a small direct-mapped table (slot n mod 256): tensors of one
  * network share a few counts and each profile needs one, while counts that vary from layer to layer (fractional, or
  * scaled by a share of zeros) simply overwrite a slot. The stored value is the function's own, so results do not change.
@@ -132,7 +148,11 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   const meanRms = keep > 0 && q > 0 ? Math.sqrt(q / keep) : 0;
   let rms = meanRms * Math.exp(-logVar / 4);
   if (bound !== undefined && rms > bound) rms = bound;
-  const elementLog2Spread = m.elementLog2Spread;
+  let elementLog2Spread = m.elementLog2Spread;
+  if (shape === "log-normal" && elementLog2Spread !== undefined && elementLog2Spread > 0 && rms > 0) {
+    const widest = widestLogNormalSpread(rms, bound, elements * keep);
+    if (elementLog2Spread > widest) elementLog2Spread = widest;
+  }
   const log2Spread = Math.sqrt(logVar) / (2 * Math.LN2);
   const maxElement = maxElementOf(shape, m.tail, elementLog2Spread, bound, rms, elements * keep);
   const shared = m.shared;

@@ -349,10 +349,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
 /** Softmax probabilities over n entries from logits of variance q: second moment, spread and rms. */
 export function softmaxMoments(q: number, n: number): { second: number; elementLog2Spread: number } {
   const second = Math.min(Math.exp(q) / (n * n), 1 / n);
-  // a log-normal with mean 1/n and second moment E[p²] has ln-variance ln(n²·E[p²]) (moment matching, common
-  // practice): q itself below the cap, ln n once E[p²] is held at 1/n, where √q/ln 2 would put the whole law far
-  // below the largest probabilities (see probabilitySpread in ops/attention)
-  return { second, elementLog2Spread: Math.sqrt(Math.min(q, Math.max(Math.log(n * n * second), 0))) / Math.LN2 };
+  return { second, elementLog2Spread: Math.sqrt(q) / Math.LN2 };
 }
 
 function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {

@@ -130,20 +130,6 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   return result;
 }
 
-/**
- * Element log2 spread of the probabilities: the logits' own (√Var[s]/ln 2, with the rows' lengths), but never more
- * than a log-normal with the rows' mean 1/keys and second moment E[p²] can have, ln-variance ln(E[p²]·keys²)
- * (moment matching, common practice). Once E[p²] is held at 1/n (one key takes nearly all of a row) the logits'
- * spread grows without end, and a log-normal of that spread and the held rms would sit wholly far below any
- * element of the tensor (largest element 0 at √Var[s] = 450); matched, its largest element reaches the bound of 1
- * and most elements fall far below the rms, as probabilities that concentrate on one key do.
- */
-export function probabilitySpread(logitVariance: number, rows: RowSums): number {
-  const own = Math.sqrt(logitVariance / (Math.LN2 * Math.LN2) + rows.rowLog2Variance);
-  const matched = Math.sqrt(Math.max(Math.log(rows.elementSecond * rows.keys * rows.keys), 0)) / Math.LN2;
-  return Math.min(own, matched);
-}
-
 /** What the attention backward rule needs. */
 export interface AttentionStash {
   input: Signal;
@@ -199,7 +185,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       mean: 1 / P,
       zeroFraction: spec.causal ? (P - 1) / (2 * P) : 0,
       shape: "log-normal",
-      elementLog2Spread: probabilitySpread(logitVariance, rows),
+      elementLog2Spread: Math.sqrt(logitVariance / (Math.LN2 * Math.LN2) + rows.rowLog2Variance),
       bound: 1,
       logVar: 0,
       gaussian: false,
