@@ -553,7 +553,11 @@ function describe(
     );
   }
   if (requested) {
-    out.push(`The spec's loss scale ${requested.scale} is ${requested.inside ? "inside" : "outside"} the window.`);
+    // the window's edges use the whole-model budget and a per-gradient energy tolerance, looser than the check's
+    // per-tensor thresholds: a scale inside it can still carry tensor findings, which the sentence must not deny
+    out.push(
+      `The spec's loss scale ${scaleWords(requested.scale)} is ${requested.inside ? "inside" : "outside"} the window (where the whole model overflows in at most ${plainNumber(options.riskBudget)} of the steps and no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${requested.inside ? "; each tensor is still judged against its own thresholds below" : ""}.`,
+    );
   }
   out.push("The scale is removed before the optimizer step and before gradient clipping, so their settings need no change (Micikevicius et al. 2018 §3.2).");
   return out;

@@ -140,3 +140,22 @@ describe("the bfloat16 remedy names the precision it trades", () => {
     expect(remedy.sentence).toContain(`at 8 significant bits instead of ${bits}.`);
   });
 });
+
+describe("a loss scale the spec gives", () => {
+  // the window is the gradients' whole-model budget (DEFAULT_WINDOW_OPTIONS: 1e-4 overflowing steps, 0.1% of a
+  // gradient's squared norm flushed, documented in README); the check's per-tensor thresholds are stricter, so
+  // "inside the window" must not read as "no finding"
+  const g = gradient("g/activation-gradient", { elements: 1e6, zeroFraction: 0, shape: "gaussian", rms: 2 ** -10, log2Spread: 0 });
+  it("says inside or outside with the window's own limits, and that tensors are still judged", () => {
+    const inside = lossScaleAnswer(prediction(g), { ...plan, lossScale: 1 });
+    expect(inside.requested).toEqual({ scale: 1, inside: true });
+    expect(inside.sentences).toContain(
+      "The spec's loss scale 1 is inside the window (where the whole model overflows in at most 1e-4 of the steps and no gradient loses more than 0.1% of its squared norm to flushing); each tensor is still judged against its own thresholds below.",
+    );
+    const outside = lossScaleAnswer(prediction(g), { ...plan, lossScale: 2 ** 30 });
+    expect(outside.requested?.inside).toBe(false);
+    expect(outside.sentences.find((s) => s.startsWith("The spec's loss scale"))).toBe(
+      "The spec's loss scale 2^30 is outside the window (where the whole model overflows in at most 1e-4 of the steps and no gradient loses more than 0.1% of its squared norm to flushing).",
+    );
+  });
+});
