@@ -16,6 +16,7 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import { parseLossScale } from "./loss-scale.js";
+import { DEFAULT_THRESHOLDS } from "../risk/catalogue.js";
 import { writeFileAtomic } from "./shared.js";
 import { loadSpecReporting } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
@@ -116,9 +117,18 @@ export function simulationExitCode(result: SimulationResult): number {
   return bad ? EXIT.findings : EXIT.ok;
 }
 
+/**
+ * Whether a simulated tensor has a finding, by the check's own at-risk thresholds (DEFAULT_THRESHOLDS): a flushed or
+ * subnormal share that check would call at risk, or any overflow, clipping or non-finite value (each one a real
+ * event in the run). Any single flushed element counted before, listing hundreds of weights at "<0.1%".
+ */
+export function simulatedFinding(counts: MeasuredTensor["median"]["counts"]): boolean {
+  const t = DEFAULT_THRESHOLDS;
+  return counts.flushed >= t.flushedAtRisk || counts.subnormal >= t.subnormalAtRisk || counts.overflowed > 0 || counts.saturated > 0 || counts.nonFinite > 0;
+}
+
 function hasFinding(t: MeasuredTensor): boolean {
-  const c = t.median.counts;
-  return c.flushed > 0 || c.overflowed > 0 || c.saturated > 0 || c.nonFinite > 0 || c.subnormal > 0.01;
+  return simulatedFinding(t.median.counts);
 }
 
 function share(x: number): string {
