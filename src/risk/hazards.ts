@@ -10,7 +10,7 @@ import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentSides, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
+import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { plainNumber, probabilityWords, scaleWords, sharePercent } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
@@ -523,7 +523,7 @@ function optimizerConstant(site: HazardSite, gradient: MagnitudeProfile, context
   } else {
     const weightGradients = context.weightGradients;
     const network =
-      side === null || weightGradients === undefined ? undefined : networkZeroSecondMomentSides(weightGradients, limits.flushBound, context.beta2)[side];
+      side === null || weightGradients === undefined ? undefined : networkZeroSecondMomentsAt(weightGradients, side, limits.flushBound, context.beta2);
     const zeros = network === undefined ? zeroSecondMoments(gradient, limits.flushBound, context.beta2) : network.perStep;
     const draft = nextDraft(list);
     fill(draft, limits.format, "optimizerStates", "zero-second-moments", "optimizer-epsilon-flushed", zeros, limits.flushBound,

@@ -136,39 +136,21 @@ export function networkZeroSecondMomentsAt(
     : { perStep, at, top: top.id, topLayer: top.layer, topProfile: at === "start" ? top.start : top.end, topCount };
 }
 
-/** The network-wide counts at both sides of the horizon. */
-export interface NetworkZeroSecondMomentSides {
-  start: NetworkZeroSecondMoments;
-  end: NetworkZeroSecondMoments;
-}
-
-/**
- * {@link networkZeroSecondMomentsAt} at the start and at the end. Worked out each time it is asked for (the epsilon
- * hazard and the optimizer check both ask, only where epsilon vanishes): ~0.1 ms for ~300 weight gradients, where a
- * cache across calls would go stale for a caller who adjusts a prediction in place and judges it again.
- */
-export function networkZeroSecondMomentSides(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMomentSides {
-  return {
-    start: networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2),
-    end: networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2),
-  };
-}
-
 /** The worse (larger) of the start and end network-wide counts; the start on a tie, as a hazard's start/end choice. */
 export function networkZeroSecondMoments(weightGradients: readonly TensorPrediction[], flushBound: number, beta2: number): NetworkZeroSecondMoments {
-  const { start, end } = networkZeroSecondMomentSides(weightGradients, flushBound, beta2);
+  const start = networkZeroSecondMomentsAt(weightGradients, "start", flushBound, beta2);
+  const end = networkZeroSecondMomentsAt(weightGradients, "end", flushBound, beta2);
   return end.perStep > start.perStep ? end : start;
 }
 
 /** The weight gradients of a prediction, in its order. */
 export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
-  const tensors = prediction.tensors;
-  const list: TensorPrediction[] = [];
-  for (let i = 0; i < tensors.length; i++) {
-    const tensor = tensors[i] as TensorPrediction;
-    if (tensor.role === "weight-gradient") list.push(tensor);
+  const out: TensorPrediction[] = [];
+  for (let i = 0; i < prediction.tensors.length; i++) {
+    const tensor = prediction.tensors[i] as TensorPrediction;
+    if (tensor.role === "weight-gradient") out.push(tensor);
   }
-  return list;
+  return out;
 }
 
 /** Whether the prediction carries a hazard site of this kind itself (the check then adds none for it). */

@@ -59,14 +59,22 @@ export interface LossScaleOptions {
 
 /**
  * A tensor's profile part-way through the horizon: the rms moves geometrically from its start to its end value
- * (gradients shrink as the loss falls; the horizon's end is the spec's own statement), the spread linearly.
+ * (gradients shrink as the loss falls; the horizon's end is the spec's own statement), the spread linearly. In the one
+ * layout the risk functions read (src/risk/tensor.ts riskProfile), not a copy of every field the prediction carries.
  */
-export function profileAt(tensor: TensorPrediction, progress: number): TensorPrediction["start"] {
-  if (progress <= 0) return tensor.start;
-  if (progress >= 1) return tensor.end;
+export function profileAt(tensor: TensorPrediction, progress: number): MagnitudeProfile {
+  const from = progress <= 0 ? tensor.start : progress >= 1 ? tensor.end : undefined;
+  if (from !== undefined) return riskProfile(from);
   const { start, end } = tensor;
-  const rms = start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms;
-  return { ...start, rms, log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress };
+  return {
+    elements: start.elements,
+    zeroFraction: start.zeroFraction,
+    shape: start.shape,
+    rms: start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms,
+    log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress,
+    bound: start.bound,
+    elementLog2Spread: start.elementLog2Spread,
+  };
 }
 
 function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
@@ -302,28 +310,11 @@ class HorizonPoint {
   profile(i: number): MagnitudeProfile {
     let p = this.profiles[i];
     if (p === undefined) {
-      p = fixedProfileAt(this.gradients[i]!, this.progress);
+      p = profileAt(this.gradients[i]!, this.progress);
       this.profiles[i] = p;
     }
     return p;
   }
-}
-
-// profileAt's values in the one layout the risk functions see (src/risk/tensor.ts riskProfile): the same numbers,
-// without copying every field the prediction carries
-function fixedProfileAt(tensor: TensorPrediction, progress: number): MagnitudeProfile {
-  const from = progress <= 0 ? tensor.start : progress >= 1 ? tensor.end : undefined;
-  if (from !== undefined) return riskProfile(from);
-  const { start, end } = tensor;
-  return {
-    elements: start.elements,
-    zeroFraction: start.zeroFraction,
-    shape: start.shape,
-    rms: start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms,
-    log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress,
-    bound: start.bound,
-    elementLog2Spread: start.elementLog2Spread,
-  };
 }
 
 /**

@@ -1,7 +1,7 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import type { Prediction } from "../../src/magnitude/types.js";
-import { networkZeroSecondMomentSides, networkZeroSecondMoments, networkZeroSecondMomentsAt, weightGradientsOf } from "../../src/risk/second-moments.js";
+import { networkZeroSecondMoments, networkZeroSecondMomentsAt, weightGradientsOf } from "../../src/risk/second-moments.js";
 
 // Φ(x) by Abramowitz & Stegun 26.2.17 (|error| < 7.5e-8), independent of the engine's own normal functions
 function normalCdf(x: number): number {
@@ -53,6 +53,10 @@ describe("zero second moments per step, summed over every weight gradient", () =
   });
 
   it("follows a prediction adjusted in place: no count is remembered from an earlier call", () => {
+    const networkZeroSecondMomentSides = (list: readonly TensorPrediction[], bound: number, b2: number) => ({
+      start: networkZeroSecondMomentsAt(list, "start", bound, b2),
+      end: networkZeroSecondMomentsAt(list, "end", bound, b2),
+    });
     const a = gradient("a/weight-gradient", gaussian(1000, 2), gaussian(1000, 0.5));
     const b = gradient("b/weight-gradient", gaussian(1000, 0.4), gaussian(1000, 4));
     const activation: TensorPrediction = { ...a, id: "a/output", role: "activation", slot: "activations" };
