@@ -63,7 +63,7 @@ export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">):
  * A row's loss-scale pick and window cells: the one answer's, or, when the check answered for several gradient formats
  * (`check --format A,B`), each format's joined by "; " and led by its name ("e5m2 2^13; bfloat16 not needed").
  */
-export function rowLossScaleCells(summary: SpecSummary): { pick: string; window: string } {
+function rowLossScaleCells(summary: SpecSummary): { pick: string; window: string } {
   const scales = summary.lossScales ?? [];
   if (scales.length <= 1) return lossScaleCells(summary.lossScale);
   const cells = scales.map((s) => ({ format: s.format, ...lossScaleCells(s) }));
@@ -74,7 +74,7 @@ export function rowLossScaleCells(summary: SpecSummary): { pick: string; window:
  * The CSV cell of every gradient format's answer: entries joined by "; ", each `format:status`, with
  * `:pick:low:high` (exponents of two) for a window, e.g. "e5m2:window:13:11:17; bfloat16:not-needed".
  */
-export function lossScalesCsvCell(summary: SpecSummary): string {
+function lossScalesCsvCell(summary: SpecSummary): string {
   return (summary.lossScales ?? [])
     .map((s) => (s.status === "window" ? `${s.format}:window:${s.pickLog2}:${s.lowLog2}:${s.highLog2}` : `${s.format}:${s.status}`))
     .join("; ");
