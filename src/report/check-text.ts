@@ -4,7 +4,7 @@
  */
 import type { CheckAnswer } from "../check.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
-import { itemSummary, lossScaleClause, namesGradientFormats } from "./loss-scale.js";
+import { itemSummary, lossScaleClause, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -34,7 +34,7 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
     const answer = item.answer;
     for (const sentence of answer.sentences) out += wrap(sentence, width, indent, indent);
     answer.remedies.forEach((remedy, i) =>
-      out += wrap(`${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`, width, `${indent}${i + 1}. `, `${indent}   `),
+      out += wrap(remedyWords(remedy), width, `${indent}${i + 1}. `, `${indent}   `),
     );
     const d = answer.dynamic;
     if (d && answer.remedies.length === 0) {

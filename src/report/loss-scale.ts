@@ -5,6 +5,7 @@
 import type { FormatLossScale, LossScaleSummary } from "../batch/types.js";
 import type { CheckAnswer, LossScaleItem } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
+import type { ScaleRemedy } from "../scale/recommend.js";
 import { formatPowerOfTwo } from "./number.js";
 
 /** A check's loss-scale item in a row's terms: the window's exponents, the empty window's first sentence, the reason. */
@@ -65,4 +66,9 @@ export function lossScaleClause(lossScale: LossScaleSummary): string {
     case "not-evaluated":
       return "not evaluated";
   }
+}
+
+/** A remedy of an empty window as the terminal and the HTML report word it: "works: …" or "does not work: …". */
+export function remedyWords(remedy: ScaleRemedy): string {
+  return `${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`;
 }

@@ -7,7 +7,7 @@ import type { FormatName } from "../formats/names.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
-import { itemSummary, namesGradientFormats } from "./loss-scale.js";
+import { itemSummary, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
@@ -87,7 +87,7 @@ function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
         ? []
         : [
             ...(item.status === "empty" ? item.answer.sentences.slice(1) : item.answer.sentences),
-            ...item.answer.remedies.map((remedy, i) => `${i + 1}. ${remedy.works ? "works" : "does not work"}: ${remedy.sentence}`),
+            ...item.answer.remedies.map((remedy, i) => `${i + 1}. ${remedyWords(remedy)}`),
           ];
     const model: ReportLossScale = { summary, notes };
     if (named) model.format = format;
