@@ -14,7 +14,7 @@ import {
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { binades, percent, plainNumber, when } from "./words.js";
+import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
 export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
@@ -261,11 +261,6 @@ function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "
   if (value > fails) return "fails";
   if (value > atRisk) return "at-risk";
   return null;
-}
-
-// a share opening a sentence ("more than 99.9%" for a share short of all)
-function sentenceStart(text: string): string {
-  return text.charAt(0).toUpperCase() + text.slice(1);
 }
 
 // where a share is larger; on a tie, the moment of the worst flushed energy

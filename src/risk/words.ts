@@ -132,6 +132,14 @@ export function sharePercent(x: number): string {
   return tinyShare(x) ?? percent(x);
 }
 
+/**
+ * Words opening a sentence, with a capital: a share can begin one ("more than 99.9%" for a share short of all).
+ * @example sentenceStart("more than 99.9%") // => "More than 99.9%"
+ */
+export function sentenceStart(text: string): string {
+  return text.charAt(0).toUpperCase() + text.slice(1);
+}
+
 /** Binades with one decimal, e.g. "3.2 binades". */
 export function binades(x: number): string {
   const rounded = Math.round(x * 10) / 10;
