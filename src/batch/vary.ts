@@ -184,14 +184,14 @@ function schemaKeysAt(schema: Schema, path: readonly (string | number)[]): strin
 }
 
 /**
- * ` (did you mean "training.batch"?)` for a missing key at `path[depth]`: the nearest of `keys` (src/spec/issues.ts
- * closestWord, as the spec loader's hints), shown as the whole key with that part spelt so; "" when none is near.
+ * `did you mean "training.batch"?` for a missing key at `path[depth]`: the nearest of `keys` (src/spec/issues.ts
+ * closestWord, as the spec loader's hints), shown as the whole key with that part spelt so; undefined when none is near.
  */
-function keyHint(path: readonly (string | number)[], depth: number, keys: readonly string[]): string {
+function keyHint(path: readonly (string | number)[], depth: number, keys: readonly string[]): string | undefined {
   const part = path[depth];
   const near = typeof part === "string" ? closestWord(part, keys) : undefined;
-  if (near === undefined) return "";
-  return ` (did you mean "${describePath([...path.slice(0, depth), near, ...path.slice(depth + 1)])}"?)`;
+  if (near === undefined) return undefined;
+  return `did you mean "${describePath([...path.slice(0, depth), near, ...path.slice(depth + 1)])}"?`;
 }
 
 function describePath(path: readonly (string | number)[]): string {
@@ -301,11 +301,12 @@ function editFor(
         if (schema && !schemaHasPath(schema, missing)) {
           // the hint is among the keys the file has there and those the schema allows it to add (README, --vary)
           const allowed = [...new Set([...keys, ...schemaKeysAt(schema, path.slice(0, depth))])];
-          throw new VaryError(`--vary ${key}: the spec has no key ${describePath(missing)}${keyHint(path, depth, allowed)}`);
+          const hint = keyHint(path, depth, allowed);
+          throw new VaryError(`--vary ${key}: the spec has no key ${describePath(missing)}${hint === undefined ? "" : ` (${hint})`}`);
         }
         if (!schema) {
           const hint = keyHint(path, depth, keys);
-          throw new VaryError(`--vary ${key}: ${describePath(missing)} is not in the spec (${here} has ${keys.join(", ")}${hint === "" ? "" : `; ${hint.slice(2, -1)}`})`);
+          throw new VaryError(`--vary ${key}: ${describePath(missing)} is not in the spec (${here} has ${keys.join(", ")}${hint === undefined ? "" : `; ${hint}`})`);
         }
         let fresh = yamlScalarText(value);
         for (let i = path.length - 1; i > depth; i--) {
