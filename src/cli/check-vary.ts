@@ -4,7 +4,8 @@ import { textVarier } from "../batch/vary.js";
 import { check, loadSpecMeasurements, measuredIssues, measuredWeightProblems, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import type { Measurements } from "../measure/index.js";
 import { formatSpecIssue, specJsonSchema } from "../spec/index.js";
-import { judgeOptions, reportMeasuredIssues, type JudgeFlags } from "./check.js";
+import { judgeOptions, type JudgeFlags } from "./check.js";
+import { reportMeasuredIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 import { variantsFromOptions } from "./shared.js";
 

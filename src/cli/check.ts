@@ -3,8 +3,7 @@ import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { formatSpecIssue, type SpecIssue } from "../spec/index.js";
-import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
+import { loadSpecReporting, reportGraphIssues, reportMeasuredIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
@@ -56,12 +55,6 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
     if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
     throw error;
   }
-}
-
-/** Problems of a spec's measured data, positioned at its `measured` section: input errors (exit code 2), though the check still runs. */
-export function reportMeasuredIssues(issues: readonly SpecIssue[]): void {
-  for (const issue of issues) process.stderr.write(formatSpecIssue(issue) + "\n");
-  if (issues.length > 0) raiseExitCode(EXIT.inputError);
 }
 
 /** The flags of `check` (src/cli/commands/check.ts). */

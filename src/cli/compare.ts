@@ -1,9 +1,8 @@
 import { CheckInputError, loadSpecMeasurements, measuredIssues } from "../check.js";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
-import { formatSpecIssue } from "../spec/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
+import { loadSpecReporting, reportGraphIssues, reportMeasuredIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { stdoutStyle, textWidth } from "./terminal.js";
 
@@ -15,10 +14,7 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
   // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does
   const measurements = await loadSpecMeasurements(spec);
-  // (the lines cli/check.ts's reportMeasuredIssues writes; that module and its renderers are not loaded for compare)
-  const problems = measuredIssues(measurements, loaded.locate, spec);
-  for (const issue of problems) process.stderr.write(formatSpecIssue(issue) + "\n");
-  if (problems.length > 0) raiseExitCode(EXIT.inputError);
+  reportMeasuredIssues(measuredIssues(measurements, loaded.locate, spec));
   let comparison;
   try {
     comparison = comparePlans(spec, { ...(plans ? { plans } : {}), ...(measurements ? { measurements } : {}) });

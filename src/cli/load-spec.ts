@@ -1,6 +1,6 @@
 /** Loading one spec file for a command, with its problems reported the way every command reports them. */
 import type { GraphIssue } from "../graph/index.js";
-import { formatSpecIssue, formatSpecPath, loadSpec, type SpecResult } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath, loadSpec, type SpecIssue, type SpecResult } from "../spec/index.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 
 /**
@@ -24,4 +24,10 @@ export function reportGraphIssues(loaded: Extract<SpecResult, { ok: true }>, iss
     process.stderr.write(formatSpecIssue({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }) + "\n");
   }
   raiseExitCode(EXIT.inputError);
+}
+
+/** Problems of a spec's measured data, positioned at its `measured` section: input errors (exit code 2), though the check still runs. */
+export function reportMeasuredIssues(issues: readonly SpecIssue[]): void {
+  for (const issue of issues) process.stderr.write(formatSpecIssue(issue) + "\n");
+  if (issues.length > 0) raiseExitCode(EXIT.inputError);
 }
