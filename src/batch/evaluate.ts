@@ -16,7 +16,10 @@ export interface SpecTask {
 }
 
 /** What evaluating a task gives: a summary (or what the judge gave), or the error that stopped it. */
-export type TaskResult<T = SpecSummary> = { status: "ok"; summary: T } | { status: "error"; error: RowError };
+export type TaskResult<T = SpecSummary> = { status: "ok"; summary: T } | TaskFailure;
+
+/** The error that stopped a task. */
+export type TaskFailure = { status: "error"; error: RowError };
 
 /** How a task gets its pieces; `T` is what the judge gives (a batch row's summary). */
 export interface EvaluateHooks<T = SpecSummary> {
@@ -37,7 +40,7 @@ export interface TextHooks<T = SpecSummary> extends Omit<EvaluateHooks<T>, "read
 /** Files larger than this are refused before reading (the spec loader's limit). */
 const MAX_SPEC_BYTES = 10 * 1024 * 1024;
 
-function inputError(message: string, position?: RowError["position"]): { status: "error"; error: RowError } {
+function inputError(message: string, position?: RowError["position"]): TaskFailure {
   return { status: "error", error: position ? { kind: "input", message, position } : { kind: "input", message } };
 }
 
@@ -53,7 +56,7 @@ export function issuesError(issues: readonly SpecIssue[], originalLine: (line: n
     : { kind: "input", message, position: { file: first.file } };
 }
 
-function readError(file: string, error: unknown): { status: "error"; error: RowError } {
+function readError(file: string, error: unknown): TaskFailure {
   const code = (error as { code?: unknown } | null)?.code;
   const words: Record<string, string> = {
     ENOENT: "no such file",
@@ -97,7 +100,7 @@ export async function evaluateTask(task: SpecTask, hooks: EvaluateHooks): Promis
  * The text of a spec file (without a byte-order mark), or the input error that stops it: not a spec's extension,
  * unreadable, or above the size limit. Never throws for those.
  */
-export async function readSpecText(file: string, readText: EvaluateHooks["readText"]): Promise<string | { status: "error"; error: RowError }> {
+export async function readSpecText(file: string, readText: EvaluateHooks["readText"]): Promise<string | TaskFailure> {
   if (!/\.(ya?ml|json)$/i.test(file)) {
     return inputError(`${file}: a spec is a .yaml, .yml or .json file`, { file });
   }
