@@ -148,10 +148,9 @@ function lossScaleItems(judged: CheckResult, plan: PrecisionPlan, answers: reado
   return items;
 }
 
+// a window that is not empty has both edges and a pick (src/scale/window.ts), so `empty` alone decides
 function answerItem(answer: LossScaleAnswer): LossScaleItem {
-  const w = answer.window;
-  const empty = w.empty || w.pickLog2 === null || w.lowestLog2 === null || w.highestLog2 === null;
-  return { format: answer.format, status: empty ? "empty" : "window", answer };
+  return { format: answer.format, status: answer.window.empty ? "empty" : "window", answer };
 }
 
 // a plan whose gradients need a scale always has an answer (lossScaleAnswers searched one for every such judged plan)
