@@ -1,6 +1,6 @@
 /** The parts several command definitions share, so each file of src/cli/commands/ says only what is its own. */
 import { Option, type Command } from "commander";
-import { didYouMean } from "../../spec/issues.js";
+import { closestWord } from "../../spec/issues.js";
 
 /**
  * The action of a command: imports the command's run (src/cli/<command>.ts) only when the command runs, so `--help`
@@ -53,6 +53,6 @@ export function unknownOptionMessage(flag: string, command: Command, note = ""):
   if (word !== undefined && names.includes(word)) {
     return `${JSON.stringify(flag)} came after "--", where every word is a value; put the options before "--"`;
   }
-  const hint = word === undefined ? "" : didYouMean(word, names).replace(/"([^"]+)"/, '"--$1"');
-  return `unknown option ${JSON.stringify(flag)}${hint === "" ? `; see ${commandPath(command)} --help${note}` : hint}`;
+  const near = word === undefined ? undefined : closestWord(word, names);
+  return `unknown option ${JSON.stringify(flag)}${near === undefined ? `; see ${commandPath(command)} --help${note}` : ` (did you mean "--${near}"?)`}`;
 }
