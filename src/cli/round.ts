@@ -32,7 +32,7 @@ export function parseValue(text: string): { value: number } | { error: string } 
     // a finite decimal past binary64's largest finite value reads as infinity there (IEEE 754-2019 §4.3.1, §7.4): say so
     // rather than round an infinity and report no error
     if (!Number.isFinite(value)) {
-      return { error: `${trimmed} is beyond binary64's range (largest finite ${String(Number.MAX_VALUE).replace("e+", "e")}), where values are read first; give inf for infinity` };
+      return { error: `${trimmed} is beyond binary64's range (largest finite ${show(Number.MAX_VALUE)}), where values are read first; give inf for infinity` };
     }
     return { value };
   }
