@@ -127,10 +127,6 @@ export function simulatedFinding(counts: MeasuredTensor["median"]["counts"]): bo
   return counts.flushed >= t.flushedAtRisk || counts.subnormal >= t.subnormalAtRisk || counts.overflowed > 0 || counts.saturated > 0 || counts.nonFinite > 0;
 }
 
-function hasFinding(t: MeasuredTensor): boolean {
-  return simulatedFinding(t.median.counts);
-}
-
 function share(x: number): string {
   return x === 0 ? "0" : formatPercent(x);
 }
@@ -156,7 +152,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   lines.push("");
   const rows = comparison?.rows ?? [];
   const byId = new Map(rows.map((r) => [r.id, r]));
-  const shown = result.tensors.filter((t) => options.all === true || hasFinding(t) || byId.get(t.id)?.disagrees === true);
+  const shown = result.tensors.filter((t) => options.all === true || simulatedFinding(t.median.counts) || byId.get(t.id)?.disagrees === true);
   const columns = [
     { title: "tensor", maxWidth: 60, cut: "middle" as const },
     { title: "format" },
