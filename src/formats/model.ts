@@ -2,7 +2,7 @@
  * The generic floating-point format model: one record per format, built from exponent bits, fraction bits,
  * bias and the special-value encoding, with every limit derived from those four parameters.
  */
-import { FORMAT_ALIASES, FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
+import { FORMAT_NAMES, findAlias, isFormatName, type FormatName } from "./names.js";
 
 /**
  * What a conversion does with a value whose rounded magnitude exceeds the largest finite value.
@@ -234,7 +234,7 @@ export function getFormat(name: string): Format {
   const key = name.trim().toLowerCase();
   if (isFormatName(key)) return FORMATS[key];
   // only the aliases marked accepted: the others are suggestions in messages, never taken as the format
-  const alias = Object.hasOwn(FORMAT_ALIASES, key) ? FORMAT_ALIASES[key] : undefined;
+  const alias = findAlias(key);
   if (alias?.accepted === true) return FORMATS[alias.format];
   throw new RangeError(`unknown format "${name}"; accepted: ${FORMAT_NAMES.join(", ")}`);
 }

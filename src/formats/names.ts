@@ -58,11 +58,11 @@ export const FORMAT_ALIASES: Readonly<Record<string, FormatAlias>> = Object.free
 } satisfies Record<string, FormatAlias>);
 
 /**
- * The format an alias stands for (case-insensitive, surrounding spaces ignored), accepted or only suggested;
- * undefined for a name that is no alias.
- * @example formatOfAlias("F16") // => "binary16"
+ * The alias a name is (case-insensitive, surrounding spaces ignored), accepted or only suggested; undefined for a
+ * name that is no alias.
+ * @example findAlias("F16") // => { format: "binary16", accepted: false }
  */
-export function formatOfAlias(name: string): FormatName | undefined {
+export function findAlias(name: string): FormatAlias | undefined {
   const key = name.trim().toLowerCase();
-  return Object.hasOwn(FORMAT_ALIASES, key) ? FORMAT_ALIASES[key]!.format : undefined;
+  return Object.hasOwn(FORMAT_ALIASES, key) ? FORMAT_ALIASES[key] : undefined;
 }

@@ -2,7 +2,7 @@
  * Problems found in a network spec, as plain values, and their one-line rendering.
  * Messages are not sentences: lowercase start, no trailing period.
  */
-import { formatOfAlias } from "../formats/names.js";
+import { findAlias } from "../formats/names.js";
 import type { SpecPath } from "./types.js";
 
 /** A place in a spec file; line and column are 1-based (0 when the problem concerns the file as a whole). */
@@ -119,7 +119,7 @@ export function didYouMean(word: string, candidates: readonly string[]): string 
  * @example didYouMeanFormat("f16", FORMAT_NAMES) // => ' (did you mean "binary16"?)'
  */
 export function didYouMeanFormat(word: string, candidates: readonly string[]): string {
-  const alias = formatOfAlias(word);
+  const alias = findAlias(word)?.format;
   if (alias !== undefined && candidates.includes(alias)) return ` (did you mean "${alias}"?)`;
   return didYouMean(word, candidates);
 }
