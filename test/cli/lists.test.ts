@@ -4,7 +4,7 @@ import { UserError } from "../../src/cli/errors.js";
 import { parseFormatList, splitList } from "../../src/cli/lists.js";
 import { parseShrink } from "../../src/cli/simulate.js";
 import { getFormat } from "../../src/formats/index.js";
-import { FORMAT_ALIASES as FORMAT_ALIASES } from "../../src/formats/names.js";
+import { FORMAT_ALIASES } from "../../src/formats/names.js";
 import { parseSpec } from "../../src/spec/index.js";
 
 const ACCEPTED = "accepted: binary16, bfloat16, binary32, binary64, tf32, e5m2, e4m3 (comma-separated)";
