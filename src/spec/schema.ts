@@ -31,12 +31,10 @@ import {
   WORKER_GRADIENTS,
 } from "./limits.js";
 
-// the keys of the three input kinds, to name a misspelt one ("featurs")
-const INPUT_KEYS = ["features", "positions", "scale", "tokens", "channels", "height", "width"];
-
-function misspeltInputKeys(input: object): string {
-  const unknown = Object.keys(input).filter((key) => !INPUT_KEYS.includes(key));
-  return unknown.map((key) => `; unknown key "${key}"${didYouMean(key, INPUT_KEYS)}`).join("");
+/** `; unknown key "featurs" (did you mean "features"?)` for each key of `input` that no kind of input has. */
+function misspeltInputKeys(input: object, inputKeys: readonly string[]): string {
+  const unknown = Object.keys(input).filter((key) => !inputKeys.includes(key));
+  return unknown.map((key) => `; unknown key "${key}"${didYouMean(key, inputKeys)}`).join("");
 }
 
 export {
@@ -334,30 +332,34 @@ function buildSchemas(z: typeof Zod) {
   // ---------------------------------------------------------------------------------------------
   // input and training
 
+  const inputKinds = [
+    z
+      .strictObject({
+        features: size("Features per position"),
+        positions: size("Positions per sample, e.g. a sequence length (default 1)").default(1),
+        scale: positive("Root-mean-square of an input element (default 1)").default(1),
+      })
+      .describe("Real-valued features"),
+    z
+      .strictObject({
+        tokens: size("Sequence length: token positions per sample; the first layer must be an embedding"),
+      })
+      .describe("Token ids"),
+    z
+      .strictObject({
+        channels: size("Image channels"),
+        height: size("Image height in pixels"),
+        width: size("Image width in pixels"),
+        scale: positive("Root-mean-square of a pixel value (default 1)").default(1),
+      })
+      .describe("Images, channels first"),
+  ] as const;
+  // every key some kind of input takes, in the order written, to name a misspelt one ("featurs")
+  const inputKeys = [...new Set(inputKinds.flatMap((kind) => Object.keys(kind.shape)))];
+
   const input = z
     .union(
-      [
-      z
-        .strictObject({
-          features: size("Features per position"),
-          positions: size("Positions per sample, e.g. a sequence length (default 1)").default(1),
-          scale: positive("Root-mean-square of an input element (default 1)").default(1),
-        })
-        .describe("Real-valued features"),
-      z
-        .strictObject({
-          tokens: size("Sequence length: token positions per sample; the first layer must be an embedding"),
-        })
-        .describe("Token ids"),
-      z
-        .strictObject({
-          channels: size("Image channels"),
-          height: size("Image height in pixels"),
-          width: size("Image width in pixels"),
-          scale: positive("Root-mean-square of a pixel value (default 1)").default(1),
-        })
-        .describe("Images, channels first"),
-      ],
+      inputKinds,
       {
         error: (issue) =>
           // an absent `input` is a missing key like any other required key, not "a mapping, got nothing"
@@ -368,7 +370,7 @@ function buildSchemas(z: typeof Zod) {
             : issue.code === "invalid_union" && Array.isArray(issue.input)
             ? `${FINAL_MESSAGE}expected a mapping such as { features: 784 }, got a list`
             : issue.code === "invalid_union" && inputKindCount(issue.input) === 0 && typeof issue.input === "object" && issue.input !== null
-              ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width${misspeltInputKeys(issue.input as object)}`
+              ? `${FINAL_MESSAGE}expected features, tokens, or channels, height and width${misspeltInputKeys(issue.input as object, inputKeys)}`
               : undefined,
       },
     )
