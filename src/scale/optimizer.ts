@@ -17,7 +17,7 @@ import {
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
-import { notCountedSentence, tinyShare } from "../risk/words.js";
+import { notCountedSentence, sentenceStart, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -438,7 +438,6 @@ function summarise(
   // a share short of all that would round to "100%" reads as certainty: "more than 99.9%" (common practice)
   const digits = (x: number) => tinyShare(x) ?? `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
   const pct = (x: number) => (x < 1 && digits(x) === "100%" ? "more than 99.9%" : digits(x));
-  const opening = (text: string) => text.charAt(0).toUpperCase() + text.slice(1);
   const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
   const master = plan.masterWeights !== "none";
   const into = master ? `the ${updateFormat.name} master copy` : `the stored ${weightFormat.name} weights`;
@@ -515,7 +514,7 @@ function summarise(
   if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
     const uncounted = raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk", updateFormat);
     reasons.push(
-      `${opening(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
+      `${sentenceStart(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
     );
     const t = tensors.find((x) => x.weight === worst!.weight)!;
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
@@ -535,7 +534,7 @@ function summarise(
     const uncounted = raise(secondMoments.verdict, stateFormat);
     tell(
       "optimizer-second-moment",
-      `${opening(pct(share))} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).${uncounted}`,
+      `${sentenceStart(pct(share))} of the second moments of ${layer} flush to zero in ${stateFormat.name} at the first step ((1 − β2)·g² below the smallest value kept).${uncounted}`,
     );
     // binary32 states only where they flush less, on the same gradients
     if (inBinary32 !== null && inBinary32 < share) {
