@@ -31,8 +31,8 @@ export interface FormatAlias {
 /**
  * The one table of other spellings, in lower case. Accepted: the spellings the command line took before this
  * table existed (README promises fp16, bf16, fp32), each naming one format wherever it is written. Suggested only:
- * short and library spellings (f16, float8_e4m3fn) and `float`, which is binary32 in C but binary64 in other
- * languages: a guess is fine in a hint, not as an answer.
+ * short spellings (f16) and `float`, which is binary32 in C but binary64 in other languages: a guess is fine in a
+ * hint, not as an answer. No other product's type names (our names are the standard's and the OCP spec's).
  * @example FORMAT_ALIASES["bf16"] // => { format: "bfloat16", accepted: true }
  */
 export const FORMAT_ALIASES: Readonly<Record<string, FormatAlias>> = Object.freeze({
@@ -52,9 +52,6 @@ export const FORMAT_ALIASES: Readonly<Record<string, FormatAlias>> = Object.free
   f64: { format: "binary64", accepted: false },
   "fp8-e5m2": { format: "e5m2", accepted: true },
   "fp8-e4m3": { format: "e4m3", accepted: true },
-  e4m3fn: { format: "e4m3", accepted: false },
-  float8_e4m3fn: { format: "e4m3", accepted: false },
-  float8_e5m2: { format: "e5m2", accepted: false },
 } satisfies Record<string, FormatAlias>);
 
 /**
