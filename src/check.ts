@@ -2,11 +2,18 @@
  * `check`: a network spec in, a judgement out. Builds the tensor graph, predicts every tensor's magnitudes and
  * judges them against the precision plan (src/risk/judge.ts). Pure; `checkFile` is the thin loader around it.
  */
-import { buildGraph, type Graph, type GraphIssue } from "./graph/index.js";
+import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
-import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements } from "./measure/index.js";
+import {
+  applyMeasurements,
+  calibrateGraph,
+  loadMeasurements,
+  weightMismatchProblems,
+  type Measurements,
+  type WeightCalibration,
+} from "./measure/index.js";
 import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
@@ -86,18 +93,20 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  * The loss-scale answer is for the gradients of the formats judged; its finding counts in `verdict` when its format is
  * one of them. The optimizer is worked out for the plan, and its findings count only in the plan's formats judged;
  * a finding not counted says so in its sentence.
- * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
- * network cannot be built from the spec.
+ * `measurements` (the spec's measured data, {@link loadSpecMeasurements}) may also be given as the
+ * {@link measuredNetwork} of the spec, whose graph and weight matching the check then uses instead of making them again.
+ * Throws RangeError for bad options (an unknown plan, a non-positive loss scale), CheckInputError when the
+ * network cannot be built from the spec, and TypeError for a measured network made for another network.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
-export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements): CheckAnswer {
+export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements | MeasuredNetwork): CheckAnswer {
   const plan = choosePlan(spec, options.plan);
   // bad options (a loss scale, a format name) fail here, before the graph, the prediction and the window searches
   const formats = checkedFormats(plan, options);
-  const built = buildGraph(spec);
-  if (!built.ok) throw new CheckInputError(built.issues);
+  const network = networkFor(spec, measurements);
+  if (!network.built.ok) throw new CheckInputError(network.built.issues);
   const planned = { ...spec, precision: plan };
-  const prediction = measuredPrediction(built.graph, planned, measurements);
+  const prediction = measuredPrediction(network.built.graph, network, planned);
   const answers = lossScaleAnswers(prediction, plan, formats, options, spec.training.horizon.steps);
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
@@ -228,12 +237,67 @@ function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {
 }
 
 /**
+ * A spec's network built and matched to the spec's measured weights, once: what {@link check} needs, and the measured
+ * weights the network cannot use. Give it to `check` in place of the measurements, and the check builds and matches
+ * nothing again.
+ */
+export interface MeasuredNetwork {
+  /** the spec it was made for; `check` takes it for that spec, or a copy that keeps its network (another plan) */
+  readonly spec: NetworkSpec;
+  /** the spec's measured data, undefined when it has none */
+  readonly measurements: Measurements | undefined;
+  /** the spec's graph, or why it cannot be built */
+  readonly built: GraphResult;
+  /** the graph weights matched to the measured ones; undefined without weight data or when the network cannot be built */
+  readonly calibration: WeightCalibration | undefined;
+  /**
+   * the measured weights that a weight of the network matched by name but cannot use, as they hold another number of
+   * elements, one line each ({@link measuredWeightProblems}); the reading problems stay in `measurements.problems`
+   */
+  readonly weightProblems: readonly string[];
+}
+
+/**
+ * Build the spec's network and match its measured weights (from {@link loadSpecMeasurements}) to it, once: the problems
+ * to report and what {@link check} needs, so that reporting them and checking cost one graph build and one matching.
+ */
+export function measuredNetwork(spec: NetworkSpec, measurements: Measurements | undefined): MeasuredNetwork {
+  const built = buildGraph(spec);
+  const weights = measurements?.weights;
+  const calibration = built.ok && weights !== undefined ? calibrateGraph(built.graph, weights, spec.measured?.names ?? {}) : undefined;
+  return { spec, measurements, built, calibration, weightProblems: calibration === undefined ? [] : weightMismatchProblems(calibration) };
+}
+
+// Measurements never carry `built`, so this tells the two kinds of check()'s last argument apart
+function isMeasuredNetwork(value: Measurements | MeasuredNetwork): value is MeasuredNetwork {
+  return (value as Partial<MeasuredNetwork>).built !== undefined;
+}
+
+/** check()'s network: the one given when it was made for this spec's network, or one made now. */
+function networkFor(spec: NetworkSpec, given: Measurements | MeasuredNetwork | undefined): MeasuredNetwork {
+  if (given === undefined || !isMeasuredNetwork(given)) return measuredNetwork(spec, given);
+  if (!sameNetwork(given.spec, spec)) {
+    throw new TypeError(`the measured network was made for another network than the spec "${spec.name}" checked (make it with measuredNetwork(spec, measurements))`);
+  }
+  return given;
+}
+
+/**
+ * Whether two specs give the same graph and weight matching: they share every part the graph is built from (name,
+ * input, training, blocks, layers) and the `measured` section, as a copy of a spec with another plan does.
+ */
+function sameNetwork(a: NetworkSpec, b: NetworkSpec): boolean {
+  return a === b || (a.name === b.name && a.input === b.input && a.training === b.training && a.blocks === b.blocks && a.layers === b.layers && a.measured === b.measured);
+}
+
+/**
  * The prediction, with measured data where the spec has it: measured weights replace the initialisation before
  * propagation; recorded statistics replace profiles after it (src/measure/calibrate.ts).
  */
-function measuredPrediction(graph: Graph, spec: NetworkSpec, measurements: Measurements | undefined): Prediction {
+function measuredPrediction(graph: Graph, network: MeasuredNetwork, spec: NetworkSpec): Prediction {
+  const measurements = network.measurements;
   if (measurements === undefined) return predict(graph, spec);
-  const calibration = measurements.weights ? calibrateGraph(graph, measurements.weights, spec.measured?.names ?? {}) : undefined;
+  const calibration = network.calibration;
   const prediction = predict(calibration?.graph ?? graph, spec);
   return applyMeasurements(prediction, calibration, measurements.statistics, measurements.statisticsFile).prediction;
 }
@@ -254,27 +318,23 @@ export async function loadSpecMeasurements(spec: NetworkSpec, cache?: Map<string
 }
 
 /**
- * The problems of a spec's measured data as issues positioned at its `measured` section: those of reading it, and
- * given the spec, the measured weights its network cannot use ({@link measuredWeightProblems}).
+ * Problems of a spec's measured data (`measurements.problems`, a measured network's `weightProblems`), one line each,
+ * as issues positioned at the spec's `measured` section.
  */
-export function measuredIssues(measurements: Measurements | undefined, locate: (path: SpecPath) => SpecPosition, spec?: NetworkSpec): SpecIssue[] {
-  const problems = measurements?.problems ?? [];
-  const all = spec === undefined ? problems : [...problems, ...measuredWeightProblems(spec, measurements)];
-  return all.map((message) => ({ ...locate(["measured"]), path: "measured", message }));
+export function measuredIssues(problems: readonly string[], locate: (path: SpecPath) => SpecPosition): SpecIssue[] {
+  return problems.map((message) => ({ ...locate(["measured"]), path: "measured", message }));
 }
 
 /**
  * The measured weights that a weight of the spec's network matched by name but cannot use, as they hold another
  * number of elements, one line each (file, tensor, both sizes): the check leaves those weights at the spec's
  * initialisation. They depend on the network, so each variant of a spec has its own. None when the network cannot
- * be built (the check says why).
+ * be built (the check says why). This builds the network: to check the spec too, take {@link measuredNetwork}'s
+ * `weightProblems` and give the network to {@link check}, which then builds nothing again.
  */
 export function measuredWeightProblems(spec: NetworkSpec, measurements: Measurements | undefined): string[] {
-  const weights = measurements?.weights;
-  if (weights === undefined || weights.tensors.length === 0) return [];
-  const built = buildGraph(spec);
-  if (!built.ok) return [];
-  return weightMismatchProblems(calibrateGraph(built.graph, weights, spec.measured?.names ?? {}));
+  if (measurements?.weights === undefined || measurements.weights.tensors.length === 0) return [];
+  return [...measuredNetwork(spec, measurements).weightProblems];
 }
 
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
@@ -300,10 +360,12 @@ export async function checkFile(path: string, options: CheckAnswerOptions = {}):
   const loaded = await loadSpec(path);
   if (!loaded.ok) return { ok: false, issues: loaded.issues };
   const measurements = await loadSpecMeasurements(loaded.spec);
+  // one graph build and weight matching serves the warnings and the check
+  const network = measuredNetwork(loaded.spec, measurements);
   // unreadable or unusable measured data leaves those profiles predicted; say so at the spec's `measured` key
-  const measuredWarnings = measuredIssues(measurements, loaded.locate, loaded.spec);
+  const measuredWarnings = measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate);
   try {
-    return { ok: true, result: check(loaded.spec, options, measurements), warnings: [...loaded.warnings, ...measuredWarnings] };
+    return { ok: true, result: check(loaded.spec, options, network), warnings: [...loaded.warnings, ...measuredWarnings] };
   } catch (error) {
     if (error instanceof CheckInputError) {
       return {

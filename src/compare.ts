@@ -2,7 +2,7 @@
  * Precision plans side by side: which ones train safely, what breaks first in the others, and what each costs
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
-import { check } from "./check.js";
+import { check, type MeasuredNetwork } from "./check.js";
 import { getFormat } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import type { CheckResult, Verdict } from "./risk/index.js";
@@ -95,8 +95,11 @@ export interface CompareOptions {
   plans?: readonly PrecisionPlan[];
   /** seed of the dynamic-scale simulation (default 1) */
   seed?: number;
-  /** the spec's measured data (`loadSpecMeasurements`), which every plan is judged with, as `check` judges one */
-  measurements?: Measurements;
+  /**
+   * the spec's measured data (`loadSpecMeasurements`), which every plan is judged with, as `check` judges one; as the
+   * spec's `measuredNetwork`, every plan's check takes its graph and weight matching instead of making them again
+   */
+  measurements?: Measurements | MeasuredNetwork;
 }
 
 /**

@@ -4,13 +4,12 @@
  */
 import { readFileSync } from "node:fs";
 import { workerData } from "node:worker_threads";
-import { check, loadSpecMeasurements, measuredWeightProblems } from "../check.js";
 import type { Measurements } from "../measure/index.js";
 import type { CheckOptions } from "../risk/index.js";
-import { specJsonSchema, type SpecPath } from "../spec/index.js";
+import { specJsonSchema } from "../spec/index.js";
 import { evaluateTask } from "./evaluate.js";
+import { checkMeasuredSpec } from "./measured.js";
 import { serveTasks } from "./serve.js";
-import { summarizeCheck } from "../report/summary.js";
 
 /** What the pool hands each batch worker. */
 export interface BatchWorkerData {
@@ -26,16 +25,6 @@ let schema: Record<string, unknown> | undefined = data.schema;
 // otherwise built on the first task with a variant: most batches have none, and building it loads zod (~0.2 s)
 const lazySchema = (): Record<string, unknown> => (schema ??= specJsonSchema());
 
-/** Unreadable or unusable measured data: an input error at the spec's `measured` section, as `headroom check` makes it (exit code 2). */
-class MeasuredDataError extends RangeError {
-  readonly issues: { path: SpecPath; message: string }[];
-  constructor(problems: readonly string[]) {
-    super(`the measured data cannot be read: ${problems.join("; ")}`);
-    this.name = "MeasuredDataError";
-    this.issues = problems.map((message) => ({ path: ["measured"], message }));
-  }
-}
-
 // the variants of a spec come to a worker one after another and share their measured data, read once: a weight file
 // may be a whole checkpoint; the readings of earlier specs are let go after a few
 const measuredCache = new Map<string, Promise<Measurements>>();
@@ -46,13 +35,9 @@ serveTasks((task: Parameters<typeof evaluateTask>[0]) =>
     readText: (file) => readFileSync(file, "utf8"),
     schema: lazySchema,
     // a spec's measured weights and statistics count here too
-    judge: async (spec) => {
+    judge: (spec) => {
       if (measuredCache.size >= MEASURED_KEPT) measuredCache.clear();
-      const measurements = await loadSpecMeasurements(spec, measuredCache);
-      // a weight of this spec's network (a variant may change a width) that its matched tensor does not fit counts too
-      const problems = measurements === undefined ? [] : [...measurements.problems, ...measuredWeightProblems(spec, measurements)];
-      if (problems.length > 0) throw new MeasuredDataError(problems);
-      return summarizeCheck(check(spec, options, measurements));
+      return checkMeasuredSpec(spec, options, measuredCache);
     },
   }),
 );

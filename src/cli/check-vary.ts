@@ -1,7 +1,7 @@
 import { readFile } from "node:fs/promises";
 import { evaluateText, readSpecText } from "../batch/evaluate.js";
 import { textVarier } from "../batch/vary.js";
-import { check, loadSpecMeasurements, measuredIssues, measuredWeightProblems, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
+import { check, loadSpecMeasurements, measuredIssues, measuredNetwork, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
 import type { Measurements } from "../measure/index.js";
 import { formatSpecIssue, specJsonSchema } from "../spec/index.js";
 import { judgeOptions, type JudgeFlags } from "./check.js";
@@ -42,13 +42,15 @@ export async function checkVariants(
         const measurements = await loadSpecMeasurements(spec, measuredCache);
         if (measurements !== undefined && !reported.has(measurements)) {
           reported.add(measurements);
-          reportMeasuredIssues(measuredIssues(measurements, locate));
+          reportMeasuredIssues(measuredIssues(measurements.problems, locate));
         }
-        // the weights this variant's network cannot use (a varied width), named by the variant
-        const unusable = measuredIssues({ problems: measuredWeightProblems(spec, measurements) }, locate);
+        // the weights this variant's network cannot use (a varied width), named by the variant; the graph built and
+        // the weights matched for them serve the check
+        const network = measuredNetwork(spec, measurements);
+        const unusable = measuredIssues(network.weightProblems, locate);
         for (const issue of unusable) process.stderr.write(`${formatSpecIssue(issue)} [${variant.name}]\n`);
         if (unusable.length > 0) raiseExitCode(EXIT.inputError);
-        return check(spec, checkOptions, measurements);
+        return check(spec, checkOptions, network);
       },
     });
     if (outcome.status === "error") {

@@ -1,4 +1,4 @@
-import { check, CheckInputError, loadSpecMeasurements, measuredIssues } from "../check.js";
+import { check, CheckInputError, loadSpecMeasurements, measuredIssues, measuredNetwork } from "../check.js";
 import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
@@ -44,9 +44,11 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   if (loaded === undefined) return undefined;
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const measurements = await loadSpecMeasurements(loaded.spec);
-  reportMeasuredIssues(measuredIssues(measurements, loaded.locate, loaded.spec));
+  // the graph is built and the weights matched once, for the problems and the check
+  const network = measuredNetwork(loaded.spec, measurements);
+  reportMeasuredIssues(measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate));
   try {
-    return check(loaded.spec, options, measurements);
+    return check(loaded.spec, options, network);
   } catch (error) {
     if (error instanceof CheckInputError) {
       reportGraphIssues(loaded, error.issues);

@@ -1,4 +1,4 @@
-import { CheckInputError, loadSpecMeasurements, measuredIssues } from "../check.js";
+import { CheckInputError, loadSpecMeasurements, measuredIssues, measuredNetwork } from "../check.js";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
 import type { PrecisionPlan } from "../spec/types.js";
@@ -12,12 +12,14 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   if (loaded === undefined) return;
   const spec = loaded.spec;
   const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
-  // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does
+  // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does; the
+  // graph is built and the weights matched once for the problems and every plan's check
   const measurements = await loadSpecMeasurements(spec);
-  reportMeasuredIssues(measuredIssues(measurements, loaded.locate, spec));
+  const network = measuredNetwork(spec, measurements);
+  reportMeasuredIssues(measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate));
   let comparison;
   try {
-    comparison = comparePlans(spec, { ...(plans ? { plans } : {}), ...(measurements ? { measurements } : {}) });
+    comparison = comparePlans(spec, { ...(plans ? { plans } : {}), measurements: network });
   } catch (error) {
     // the network cannot be built: every plan's check says so, the first one first
     if (error instanceof CheckInputError) return reportGraphIssues(loaded, error.issues);
