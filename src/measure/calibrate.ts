@@ -60,21 +60,23 @@ export interface WeightMatch {
   note?: string;
 }
 
-/** A tensor that matched a weight by name but was not used for it. */
-export interface RejectedMatch {
+/** A tensor that matched a weight by name, and both sizes. */
+export interface MatchedSizes {
   file: string;
   tensor: string;
-  /** `elements`: it holds another number of elements than the weight; `used`: another weight took it first */
-  reason: "elements" | "used";
   /** the tensor's element count and shape */
   elements: number;
   shape: number[];
   /** the weight's element count and shape */
   weightElements: number;
   weightShape: number[];
-  /** for `used`, the id of the weight that took it */
-  usedBy?: string;
 }
+
+/**
+ * A tensor that matched a weight by name but was not used for it: `elements`, it holds another number of elements
+ * than the weight; `used`, another weight (`usedBy`, its id) took it first.
+ */
+export type RejectedMatch = (MatchedSizes & { reason: "elements" }) | (MatchedSizes & { reason: "used"; usedBy: string });
 
 /** The outcome of matching a graph to weight files. */
 export interface WeightCalibration {
@@ -94,7 +96,7 @@ export interface WeightCalibration {
   measured: Record<string, TensorMeasure>;
 }
 
-function sizes(tensor: TensorMeasure, weight: GraphWeight): Omit<RejectedMatch, "reason"> {
+function sizes(tensor: TensorMeasure, weight: GraphWeight): MatchedSizes {
   return { file: tensor.file, tensor: tensor.name, elements: tensor.elements, shape: tensor.shape, weightElements: weight.elements, weightShape: weight.shape };
 }
 
@@ -349,7 +351,7 @@ function listed(names: readonly string[], limit = 8): string {
 /** `fc1.weight has 128 elements [8, 16], it needs 64 [4, 16]`, or `fc1.weight is already used for fc0/weight` */
 function rejectedWords(r: RejectedMatch): string {
   return r.reason === "used"
-    ? `${r.tensor} is already used for ${r.usedBy ?? "another weight"}`
+    ? `${r.tensor} is already used for ${r.usedBy}`
     : `${r.tensor} has ${r.elements} elements [${r.shape.join(", ")}], it needs ${r.weightElements} [${r.weightShape.join(", ")}]`;
 }
 

@@ -17,6 +17,7 @@ export {
   recordedProfile,
   weightMismatchProblems,
   weightTensorId,
+  type MatchedSizes,
   type MatchRule,
   type MeasurementReport,
   type RejectedMatch,
