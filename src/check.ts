@@ -6,14 +6,7 @@ import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./gra
 import { predict } from "./magnitude/index.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
-import {
-  applyMeasurements,
-  calibrateGraph,
-  loadMeasurements,
-  weightMismatchProblems,
-  type Measurements,
-  type WeightCalibration,
-} from "./measure/index.js";
+import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type WeightCalibration } from "./measure/index.js";
 import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
@@ -93,10 +86,8 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  * The loss-scale answer is for the gradients of the formats judged; its finding counts in `verdict` when its format is
  * one of them. The optimizer is worked out for the plan, and its findings count only in the plan's formats judged;
  * a finding not counted says so in its sentence.
- * `measurements` (the spec's measured data, {@link loadSpecMeasurements}) may also be given as the
- * {@link measuredNetwork} of the spec, whose graph and weight matching the check then uses instead of making them again.
- * Throws RangeError for bad options (an unknown plan, a non-positive loss scale), CheckInputError when the
- * network cannot be built from the spec, and TypeError for a measured network made for another network.
+ * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
+ * network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
 export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements | MeasuredNetwork): CheckAnswer {
@@ -238,8 +229,8 @@ function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {
 
 /**
  * A spec's network built and matched to the spec's measured weights, once: what {@link check} needs, and the measured
- * weights the network cannot use. Give it to `check` in place of the measurements, and the check builds and matches
- * nothing again.
+ * weights the network cannot use. Give it to `check(spec, options, network)` in place of the measurements, and the
+ * check builds and matches nothing again; given for another network than the spec's, check throws TypeError.
  */
 export interface MeasuredNetwork {
   /** the spec it was made for; `check` takes it for that spec, or a copy that keeps its network (another plan) */
