@@ -97,8 +97,8 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     for (let i = 0; i < sources.length; i++) out += wrap(sources[i] as string, width, `    [${i + 1}] `, "        ");
     const total = ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);
     out += wrap(
-      `The factors multiply to 2^${total.toFixed(2)} = ${formatValue(2 ** total)}; the predicted rms at the start is ` +
-        `${formatValue(tensor.start.rms)} (2^${Math.log2(tensor.start.rms || Number.MIN_VALUE).toFixed(2)}) and at the end of the horizon ${formatValue(tensor.end.rms)}.`,
+      `The factors multiply to 2^${twoDecimals(total)} = ${formatValue(2 ** total)}; the predicted rms at the start is ` +
+        `${formatValue(tensor.start.rms)} (2^${twoDecimals(Math.log2(tensor.start.rms || Number.MIN_VALUE))}) and at the end of the horizon ${formatValue(tensor.end.rms)}.`,
       width,
       "  ",
       "  ",

@@ -72,3 +72,15 @@ describe("renderExplainText sources", () => {
     rows.forEach((row, i) => expect(row.trimEnd().endsWith(`[${distinct.indexOf(ledger[i]!.source) + 1}]`)).toBe(true));
   });
 });
+
+describe("renderExplainText total", () => {
+  it("writes a product of factors and a start rms just below 1 as 2^0.00, not 2^-0.00", () => {
+    const tensor = result.tensors.find((t) => t.id === "relu-1/activation")!;
+    // a norm that undoes an embedding multiplier, then the finite-width median 0.998 (log2 -0.0029): the sum reads 0.00
+    const ledger = [entry("table", 4), entry("norm", -4), entry("(profile)", Math.log2(0.998))];
+    const start = { ...tensor.start, rms: 0.998 };
+    const text = renderExplainText(result, { ...tensor, ledger, start }, { width: 400 });
+    expect(text).toContain("The factors multiply to 2^0.00 = 0.998; the predicted rms at the start is 0.998 (2^0.00)");
+    expect(text).not.toContain("2^-0.00");
+  });
+});
