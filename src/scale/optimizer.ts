@@ -17,7 +17,7 @@ import {
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
-import { notCountedSentence, sentenceStart, tinyShare } from "../risk/words.js";
+import { notCountedSentence, plainNumber, sentenceStart, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums } from "./swamping.js";
@@ -524,7 +524,7 @@ function summarise(
   if (decayFinding) {
     const uncounted = raise("at-risk", updateFormat);
     reasons.push(
-      `weight decay steps (learning rate × decay = ${decayRatio.toExponential(2)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.${uncounted}`,
+      `weight decay steps (learning rate × decay = ${plainNumber(decayRatio)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.${uncounted}`,
     );
   }
   if (lostUpdate !== null || decayFinding) remedies.push(...updateRemedies(lostUpdate, worst?.weight ?? "", decayFinding ? { ratio: decayRatio, lost: decay } : null));
@@ -549,7 +549,7 @@ function summarise(
     const uncounted = raise(vanishedEpsilonVerdict(zeros.perStep), stateFormat);
     const where =
       zeros.perStep >= 1
-        ? `about ${zeros.perStep.toPrecision(3)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
+        ? `about ${plainNumber(zeros.perStep)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
     tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
     const raiseTo = `raise epsilon to at least ${roundedUp(formats.stateSmallest)}`;

@@ -161,7 +161,8 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
     // half an ulp in binary16 (2^-11 to 2^-10 of the weight) for every weight, above it in binary32 (2^-24)
     const result = checkOptimizer(adam(2 ** -3, 2 ** -11), plan("binary16", "none"), prediction());
     expect(result.reasons).toEqual([
-      "weight decay steps (learning rate × decay = 6.10e-5 of each weight) are lost for 100% of the weights in binary16 at the end learning rate.",
+      // 2^-14 = 6.103515625e-5 (exact), in three significant digits without a trailing zero as every sentence writes numbers
+      "weight decay steps (learning rate × decay = 6.1e-5 of each weight) are lost for 100% of the weights in binary16 at the end learning rate.",
     ]);
     expect(result.remedies).toEqual([
       "keep a binary32 master copy of the weights: weight decay steps lost for 0% of the weights instead of 100% (+4 bytes per parameter)",

@@ -196,8 +196,8 @@ describe("checkOptimizer: flushed second moments graded as their hazard grades t
 describe("checkOptimizer: zero second moments per step are counted across every weight gradient", () => {
   // README.md's thresholds table: one expected zero second moment per step in the whole network fails; three weight
   // gradients with 0.5 exact zeros each (0.0005 of 1000, constant |g| = 1e-2 above the flush bound ≈ 5.46e-3) give 1.5
-  const gradient = (id: string, zeroFraction: number): TensorPrediction => ({
-    ...tensor(id, "weight-gradient", { elements: 1000, zeroFraction, shape: "constant", rms: 1e-2, log2Spread: 0 }),
+  const gradient = (id: string, zeroFraction: number, elements = 1000): TensorPrediction => ({
+    ...tensor(id, "weight-gradient", { elements, zeroFraction, shape: "constant", rms: 1e-2, log2Spread: 0 }),
     layer: id.split("/")[0] as string,
   });
   const net = (zeroFraction: number): Prediction => ({
@@ -215,8 +215,18 @@ describe("checkOptimizer: zero second moments per step are counted across every 
   it("each tensor below one but 2 in all fails, naming the tensor giving most; 0.8 in all is at risk", () => {
     const fails = checkOptimizer(adam, plan("binary16"), net(0.0005));
     expect(fails.verdict).toBe("fails");
-    expect(fails.reasons.join(" ")).toContain("about 2.00 second moments are 0 per step (most in c/weight-gradient)");
+    // the count in three significant digits as the hazard's sentence writes it (risk/words.ts plainNumber): not "2.00"
+    expect(fails.reasons.join(" ")).toContain("about 2 second moments are 0 per step (most in c/weight-gradient)");
     expect(checkOptimizer(adam, plan("binary16"), net(0.0002)).verdict).toBe("at-risk");
+  });
+
+  it("writes a count of millions as the hazard does, 4.94e6, not toPrecision's 4.94e+6", () => {
+    // 1e7 elements each, 0.1234 of them zero in a and b, 0.2468 in c: 4.936e6 in all
+    const tensors = [gradient("a/weight-gradient", 0.1234, 1e7), gradient("b/weight-gradient", 0.1234, 1e7), gradient("c/weight-gradient", 0.2468, 1e7)];
+    const big: Prediction = { ...net(0), tensors: [tensor("a/weight", "weight", constant(0.05)), ...tensors] };
+    const text = checkOptimizer(adam, plan("binary16"), big).reasons.join(" ");
+    expect(text).toContain("about 4.94e6 second moments are 0 per step (most in c/weight-gradient)");
+    expect(text).not.toContain("e+");
   });
 });
 
