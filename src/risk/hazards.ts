@@ -11,7 +11,7 @@ import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js"
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { plainNumber, probabilityWords, scaleWords, sharePercent } from "./words.js";
+import { distinctNumbers, plainNumber, probabilityWords, scaleWords, sharePercent } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -313,13 +313,15 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
         `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${probabilityWords(value)} per step ` +
         `(${verdictWord(verdict)}).`
       );
-    case NORM_SUM:
+    case NORM_SUM: {
+      const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
-        `input rms exceeds ${plainNumber(draft.criticalLevel as number)} (predicted ${plainNumber(draft.extra)}); probability ` +
+        `input rms exceeds ${limit} (predicted ${predicted}); probability ` +
         `${probabilityWords(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`
       );
+    }
     case ACCUMULATION_ERROR:
       return (
         `${site.layer} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about ` +
@@ -330,13 +332,15 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
         `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
         `${probabilityWords(value)} per step (${verdictWord(verdict)}).`
       );
-    case LOSS_VALUE:
+    case LOSS_VALUE: {
+      const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${plainNumber(draft.criticalLevel as number)} ` +
-        `(predicted ${plainNumber(draft.extra)}); probability ${probabilityWords(value)} per step` +
+        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
+        `(predicted ${predicted}); probability ${probabilityWords(value)} per step` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
+    }
     case GRADIENT_SUM_OVERFLOW:
       return (
         `The sum of ${Math.max(1, site.terms)} gradient contributions of ${site.layer} (rms ${plainNumber(draft.extra)} after the loss ` +

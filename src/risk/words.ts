@@ -22,6 +22,40 @@ export function plainNumber(x: number): string {
   return `${sign}0.${"0".repeat(-e - 1)}${STRIPPED[n]}`;
 }
 
+/**
+ * A number in `digits` significant digits (3 or more), written as {@link plainNumber} writes three: plain from 1e-3
+ * up to 1e6, else in e-notation, trailing zeros dropped.
+ * @example numberInDigits(15.998, 5) // => "15.998"
+ */
+export function numberInDigits(x: number, digits: number): string {
+  if (digits <= 3 || !Number.isFinite(x) || x === 0) return plainNumber(x);
+  const magnitude = Math.abs(x);
+  if (magnitude >= 1e-3 && magnitude < 1e6) return String(Number(x.toPrecision(digits)));
+  const [mantissa, exponent] = x.toExponential(digits - 1).split("e");
+  return `${String(Number(mantissa))}e${Number(exponent)}`;
+}
+
+// at most this many significant digits to tell two numbers apart: past it they are equal for any reader's purpose
+const MOST_DIGITS = 6;
+
+/**
+ * Two numbers a sentence sets side by side (a limit and the prediction it is compared with) in three significant
+ * digits, or in as many more as it takes (up to six) for two different numbers not to read the same: "exceeds 16
+ * (predicted 16)" would not say which is larger.
+ * @example distinctNumbers(15.998, 16.04) // => ["16", "16.04"]
+ */
+export function distinctNumbers(a: number, b: number): [string, string] {
+  let digits = 3;
+  let left = plainNumber(a);
+  let right = plainNumber(b);
+  while (left === right && a !== b && digits < MOST_DIGITS) {
+    digits++;
+    left = numberInDigits(a, digits);
+    right = numberInDigits(b, digits);
+  }
+  return [left, right];
+}
+
 // for n = 100 … 999: its digits without trailing zeros ("12" for 120), as d.dd ("1.2") and as dd.d ("12")
 const STRIPPED: string[] = [];
 const MANTISSA: string[] = [];

@@ -88,6 +88,21 @@ describe("norm sums of squares", () => {
   });
 });
 
+describe("a limit and a prediction that read alike at three digits", () => {
+  it("a norm's sum of squares over 256 features of rms 16 in binary16: exceeds 15.998 (predicted 16), not 16 (predicted 16)", () => {
+    // √(65520/256) = 15.998046875: binary16 overflows from 65520 under RNE (IEEE 754-2019 Table 3.5; SCIENCE.md §1.2)
+    const check = evaluateHazard(site({ kind: "norm-sum-of-squares", terms: 256, input: profile({ shape: "constant", rms: 16, elements: 256 * 2048 }) }), context());
+    expect(check.evaluations[0]?.sentence).toContain("overflows binary16 once the input rms exceeds 15.998 (predicted 16);");
+  });
+
+  it("a loss of 8 times the loss scale 2^13 in binary16: exceeds 7.998 (predicted 8)", () => {
+    // 65520 / 8192 = 7.998046875 (binary16's overflow threshold, IEEE 754-2019 Table 3.5 with RNE)
+    const loss = site({ kind: "loss-value", terms: 1, input: profile({ shape: "constant", rms: 8 }) });
+    const check = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 8192 }));
+    expect(check.evaluations[0]?.sentence).toContain("overflows binary16 when it exceeds 7.998 (predicted 8);");
+  });
+});
+
 describe("accumulation", () => {
   it("relative error √n·u: 4096 terms give 64·2^-11 = 0.03125 in binary16 (at risk), 64·2^-8 = 0.25 in bfloat16 (fails)", () => {
     const sum = site({ kind: "accumulation", terms: 4096, input: profile({ rms: 1e-2, elements: 4096 * 100 }) });

@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { binades, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
+import { binades, distinctNumbers, numberInDigits, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
 
 // The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
 // (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
@@ -113,3 +113,24 @@ function nextUp(x: number): number {
 function nextDown(x: number): number {
   return -nextUp(-x);
 }
+
+describe("distinctNumbers", () => {
+  it("adds significant digits until two different numbers read differently, up to six", () => {
+    // √(65520/256) = 15.998046875 (binary16's overflow threshold 65520, IEEE 754-2019 Table 3.5 with RNE) against 16
+    expect(distinctNumbers(Math.sqrt(65520 / 256), 16)).toEqual(["15.998", "16"]);
+    expect(distinctNumbers(Math.sqrt(65520 / 256), 16.04)).toEqual(["16", "16.04"]);
+    expect(distinctNumbers(1.2341e-7, 1.2344e-7)).toEqual(["1.2341e-7", "1.2344e-7"]);
+    // numbers that already differ, or are equal, keep three digits; past six digits nothing more is added
+    expect(distinctNumbers(0.707, 0.984)).toEqual(["0.707", "0.984"]);
+    expect(distinctNumbers(4, 4)).toEqual(["4", "4"]);
+    expect(distinctNumbers(1, 1 + 1e-9)).toEqual(["1", "1"]);
+  });
+
+  it("writes more digits as plainNumber writes three: toPrecision's digits, e-notation outside [1e-3, 1e6)", () => {
+    // ECMA-262 §21.1.3.5 (toPrecision) and §21.1.3.2 (toExponential) give the digits
+    expect(numberInDigits(15.998046875, 5)).toBe("15.998");
+    expect(numberInDigits(2.4414e-4, 4)).toBe("2.441e-4");
+    expect(numberInDigits(1234567, 4)).toBe("1.235e6");
+    expect(numberInDigits(0.5, 3)).toBe(plainNumber(0.5));
+  });
+});
