@@ -11,7 +11,7 @@ import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js"
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { distinctNumbers, plainNumber, probabilityWords, scaleWords, sharePercent } from "./words.js";
+import { distinctNumbers, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -201,7 +201,7 @@ export function evaluateHazard(
     const worse = endWorse ? second : first;
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const sentence = sentenceOf(worse, site, context);
+    const sentence = sentenceOf(worse, site, context, ended ? at : null);
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
     if (topInput !== undefined && input === site.input) {
@@ -296,8 +296,11 @@ function verdictWord(verdict: Verdict): string {
   return verdict === "fits" ? "fits" : verdict === "at-risk" ? "at risk" : "fails";
 }
 
-// The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest.
-function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): string {
+// The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
+// of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
+// and one after the weights have grown call for different remedies)
+function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null): string {
+  const side = at === null ? "" : ` ${when(at)}`;
   const format = draft.format;
   const value = draft.value;
   const verdict = draft.verdict;
@@ -310,7 +313,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case SOFTMAX_EXP:
       return (
         `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
-        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${probabilityWords(value)} per step ` +
+        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${probabilityWords(value)} per step${side} ` +
         `(${verdictWord(verdict)}).`
       );
     case NORM_SUM: {
@@ -318,7 +321,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
         `input rms exceeds ${limit} (predicted ${predicted}); probability ` +
-        `${probabilityWords(value)} per step${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
+        `${probabilityWords(value)} per step${side}${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`
       );
     }
@@ -330,26 +333,26 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
     case ACCUMULATION_OVERFLOW:
       return (
         `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
-        `${probabilityWords(value)} per step (${verdictWord(verdict)}).`
+        `${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
     case LOSS_VALUE: {
       const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
         `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
-        `(predicted ${predicted}); probability ${probabilityWords(value)} per step` +
+        `(predicted ${predicted}); probability ${probabilityWords(value)} per step${side}` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
     }
     case GRADIENT_SUM_OVERFLOW:
       return (
         `The sum of ${Math.max(1, site.terms)} gradient contributions of ${site.layer} (rms ${plainNumber(draft.extra)} after the loss ` +
-        `scale) overflows ${format} with probability ${probabilityWords(value)} per step (${verdictWord(verdict)}).`
+        `scale) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
     case GRADIENT_SUM_FLUSH:
       return (
         `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, ` +
-        `${sharePercent(value)} more of their squared norm flushes in ${format} (${verdictWord(verdict)}).`
+        `${sharePercent(value)} more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`
       );
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
@@ -358,15 +361,15 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext): str
         `The optimizer epsilon ${plainNumber(draft.extra)} rounds to zero in ${format}` +
         (value >= 1
           ? draft.top !== ""
-            ? `, and about ${plainNumber(value)} second-moment elements of the weight gradients are zero per step (most in ` +
+            ? `, and about ${plainNumber(value)} second-moment elements of the weight gradients are zero per step${side} (most in ` +
               `${draft.top}, about ${plainNumber(draft.topValue)}), so the update divides by zero there.`
-            : `, and about ${plainNumber(value)} second-moment elements of ${site.layer} are zero per step, so the update divides by zero there.`
+            : `, and about ${plainNumber(value)} second-moment elements of ${site.layer} are zero per step${side}, so the update divides by zero there.`
           : `; an update divides by zero wherever a second moment is zero.`)
       );
     default:
       return (
         `The second moment (1 − β2)·g² of ${site.layer} flushes in ${format} for gradients below ` +
-        `${plainNumber(draft.criticalLevel as number)}: ${sharePercent(value)} of its elements (${verdictWord(verdict)}).`
+        `${plainNumber(draft.criticalLevel as number)}: ${sharePercent(value)} of its elements${side} (${verdictWord(verdict)}).`
       );
   }
 }

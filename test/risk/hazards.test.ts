@@ -313,10 +313,25 @@ describe("the start and the end of the horizon", () => {
         expect(evaluation.at).toBe(endWorse ? "end" : "start");
         expect(evaluation.value).toBe(expected.value);
         expect(evaluation.verdict).toBe(expected.verdict);
-        expect(evaluation.sentence).toBe(expected.sentence);
+        // the same sentence, saying which side of the horizon its numbers are from
+        const side = endWorse ? " at the end of the horizon" : " at the start of training";
+        expect(evaluation.sentence).toContain(side);
+        expect(evaluation.sentence.replace(side, "")).toBe(expected.sentence);
       });
     });
   }
+
+  it("a softmax whose logits grow past exp's limit by the end says so; one judged only at the start names no side", () => {
+    // exp overflows binary16 from ln 65520 = 11.09 (SCIENCE.md §4): logits of 5 never reach it, logits of 40 always do
+    const grows = evaluateHazard(
+      site({ kind: "softmax-exp", input: profile({ shape: "constant", rms: 5, elements: 64 }), end: { input: profile({ shape: "constant", rms: 40, elements: 64 }) } }),
+      context(),
+    );
+    expect(grows.evaluations[0]?.at).toBe("end");
+    expect(grows.evaluations[0]?.sentence).toContain("reached with probability 1 per step at the end of the horizon (fails).");
+    const once = evaluateHazard(site({ kind: "softmax-exp", input: profile({ shape: "constant", rms: 40, elements: 64 }) }), context());
+    expect(once.evaluations[0]?.sentence).toContain("reached with probability 1 per step (fails).");
+  });
 });
 
 describe("one site judged under several plans", () => {
