@@ -555,7 +555,12 @@ function assumptions(spec: NetworkSpec): string[] {
   if (t.accumulationSteps > 1) list.push(`Each of the ${t.accumulationSteps} accumulation steps divides its loss by ${t.accumulationSteps} (common practice), so every gradient of one backward pass is ${t.accumulationSteps} times smaller.`);
   if (t.workers > 1) list.push(`The ${t.workers} workers' gradients are summed${t.workerGradients === "average" ? " and then divided by the worker count" : ""}; the reported weight gradient is the combined one, and the gradient-sum hazard shows the sum before any division.`);
   if (t.horizon.finalLoss === undefined) list.push("No final loss is given, so gradients are assumed not to shrink by the end of the horizon.");
-  else if (t.loss.kind === "cross-entropy") list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${Math.exp(-t.horizon.finalLoss).toPrecision(3)}, which shrinks the output gradient (derivation in src/magnitude/loss.ts).`);
+  else if (t.loss.kind === "cross-entropy") {
+    const pRight = Math.exp(-t.horizon.finalLoss);
+    // an untrained classifier gives the right class about 1/classes: a final loss not below ln(classes) is no surer
+    const effect = pRight > 1 / t.loss.classes ? "which shrinks the output gradient" : `no more than the untrained 1/${t.loss.classes}, so the output gradient does not shrink`;
+    list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${String(Number(pRight.toPrecision(3)))}, ${effect} (derivation in src/magnitude/loss.ts).`);
+  }
   else list.push("At the end of the horizon the output residual's rms is √(final loss), which shrinks the output gradient by √(final loss / initial loss).");
   if (t.horizon.weightGrowth !== 1) list.push(`Every weight's rms is multiplied by ${t.horizon.weightGrowth} at the end of the horizon, and the forward pass is recomputed with it.`);
   return list;

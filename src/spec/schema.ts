@@ -427,7 +427,7 @@ function buildSchemas(z: typeof Zod) {
   const horizon = z
     .strictObject({
       steps: z.int().min(1).max(MAX_STEPS).describe("Training steps until the end"),
-      "final-loss": nonNegative("Expected loss at the end; gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
+      "final-loss": nonNegative("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
       "weight-growth": positive("How much the weights' rms grows by the end (default 1: not at all)").default(1),
     })
     .describe("Where training is expected to end, so late-training gradients are covered too (default: the first step only)");

@@ -288,4 +288,17 @@ describe("the assumptions listed", () => {
     const lookup = run(makeSpec([embedding("e", 4096, 16), dense("out", 8, lecun)], { input: tokens(32), loss: crossEntropy(8) }));
     expect(lookup.assumptions.some((a) => token.test(a))).toBe(true);
   });
+
+  test("say the output gradient shrinks only when the final loss is below ln(classes)", () => {
+    // e^(−0.5) = 0.607 > 1/10 shrinks 1 − p; e^(−3) = 0.0498 < 1/10 (3 > ln 10 = 2.303) is no surer than an untrained
+    // classifier's 1/10 (uniform predictions), so 1 − p does not shrink
+    const at = (finalLoss: number) =>
+      run(makeSpec([dense("out", 10, lecun)], { loss: crossEntropy(10), training: { horizon: { steps: 100, weightGrowth: 1, finalLoss } } })).assumptions.find((a) =>
+        a.startsWith("At the end of the horizon the right-class probability"),
+      );
+    expect(at(0.5)).toBe("At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.607, which shrinks the output gradient (derivation in src/magnitude/loss.ts).");
+    expect(at(3)).toBe(
+      "At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.0498, no more than the untrained 1/10, so the output gradient does not shrink (derivation in src/magnitude/loss.ts).",
+    );
+  });
 });

@@ -312,6 +312,29 @@ describe("parseSpec(text, source): warnings", () => {
   });
 });
 
+describe("parseSpec: the final loss is read per sample whatever the reduction", () => {
+  it("warns about a summed cross-entropy's final loss above ln(classes), saying the key is per sample", () => {
+    // 64 samples at a per-sample loss of 0.31 sum to 20, far above ln(10) = 2.303 (uniform predictions); the model
+    // reads final-loss per sample (src/magnitude/loss.ts), so 20 would mean a classifier worse than guessing
+    const text = (finalLoss: number) =>
+      [
+        "input: { features: 4 }",
+        "training:",
+        "  batch: 64",
+        "  loss: { kind: cross-entropy, classes: 10, reduction: sum }",
+        `  horizon: { steps: 100, final-loss: ${finalLoss} }`,
+        "layers: [{ type: dense, width: 10 }]",
+      ].join("\n");
+    const summed = parseSpec(text(20), "s.yaml");
+    if (!summed.ok) throw new Error("does not parse");
+    expect(summed.warnings.map((issue) => formatSpecIssue(issue))).toEqual([
+      "s.yaml:5:38: training.horizon.final-loss: the final loss 20 is not below the starting loss ln(10) ≈ 2.30: gradients are taken not to shrink (final-loss is the loss per sample, the mean over samples and positions, also with reduction: sum)",
+    ]);
+    const perSample = parseSpec(text(0.31), "s.yaml");
+    expect(perSample.ok && perSample.warnings).toEqual([]);
+  });
+});
+
 describe("locate(path)", () => {
   it("turns key paths into line:column of the value, and stops at the deepest node that exists", async () => {
     const { result } = await load("every-layer.yaml");
