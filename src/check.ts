@@ -10,7 +10,8 @@ import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProb
 import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
-import { lossScaleAnswer, type LossScaleAnswer } from "./scale/recommend.js";
+import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
+import { scaledFindings, weighPick } from "./scale/pick.js";
 import { formatSpecPath, loadSpec, type SpecIssue, type SpecPosition } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan, SpecPath } from "./spec/types.js";
 
@@ -98,11 +99,18 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   if (!network.built.ok) throw new CheckInputError(network.built.issues);
   const planned = { ...spec, precision: plan };
   const prediction = measuredPrediction(network.built.graph, network, planned);
-  const answers = lossScaleAnswers(prediction, plan, formats, options, spec.training.horizon.steps);
+  let answers = lossScaleAnswers(prediction, plan, formats, options, spec.training.horizon.steps);
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
   // scale wins over the windows in the judgement)
-  const judged = judgePrediction(planned, prediction, answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
+  const judgeAtPicks = () => judgePrediction(planned, prediction, answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
+  let judged = judgeAtPicks();
+  const weighed = weighedAnswers(planned, prediction, answers, judged, options);
+  if (weighed !== answers) {
+    answers = weighed;
+    // a pick moved: the gradients are judged again at it (a given scale is judged as it was)
+    if (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended")) judged = judgeAtPicks();
+  }
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
@@ -133,6 +141,34 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   return told.length > 1
     ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), lossScales, optimizer }
     : { ...judged, verdict, lossScaleAnswer: answer, lossScales, optimizer };
+}
+
+/**
+ * The answers with each window's pick weighed against the findings it leaves (src/scale/pick.ts); the same array when
+ * no pick moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale
+ * has its centre judged apart.
+ */
+function weighedAnswers(
+  spec: NetworkSpec,
+  prediction: Prediction,
+  answers: LossScaleAnswer[],
+  judged: CheckResult,
+  options: CheckAnswerOptions,
+): LossScaleAnswer[] {
+  let moved = false;
+  const out = answers.map((answer) => {
+    const pick = answer.window.pickLog2;
+    const formatCheck = judged.formats.find((f) => f.format === answer.format);
+    if (pick === null || formatCheck === undefined) return answer;
+    const applied = formatCheck.lossScale ?? judged.lossScale;
+    const subjects = { tensors: new Set<string>(), sites: new Set<string>() };
+    const atCentre = applied.value === 2 ** pick ? { findings: scaledFindings(judged, answer.format, subjects), ...subjects } : undefined;
+    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, atCentre);
+    if (found === null) return answer;
+    if (found.pickLog2 !== pick) moved = true;
+    return withWeighedPick(answer, found.pickLog2, found.weighing);
+  });
+  return moved || out.some((a, i) => a !== answers[i]) ? out : answers;
 }
 
 /** The items of `CheckAnswer.lossScales`, from the judgement and the answers as told. */

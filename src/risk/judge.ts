@@ -19,7 +19,7 @@ import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
 import { byRms, hasSite, weightGradientsOf } from "./second-moments.js";
-import { lossScaleFactor, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
+import { LOSS_SCALED_ROLES, lossScaleFactor, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -320,6 +320,60 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
     assumptions,
     caution: CAUTION,
   };
+}
+
+/**
+ * What moves with the loss scale in a prediction: the gradient tensors, and the sites of the scaled loss and of
+ * gradient sums (the prediction's and the training setup's, as {@link judgePrediction} makes them). Made once and
+ * judged at many scales by {@link judgeScaled}.
+ */
+export interface ScaledSubjects {
+  spec: NetworkSpec;
+  tensors: readonly TensorPrediction[];
+  sites: readonly { site: HazardSite; origin: HazardCheck["origin"] }[];
+  weightGradients: readonly TensorPrediction[];
+}
+
+export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): ScaledSubjects {
+  const scaledSite = (site: HazardSite) => site.kind === "loss-value" || site.kind === "gradient-sum";
+  const sites: ScaledSubjects["sites"][number][] = [];
+  for (const site of prediction.hazards) if (scaledSite(site)) sites.push({ site, origin: "prediction" });
+  for (const site of trainingSites(spec, prediction)) if (scaledSite(site)) sites.push({ site, origin: "training setup" });
+  return { spec, tensors: prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role)), sites, weightGradients: weightGradientsOf(prediction) };
+}
+
+/**
+ * The findings of the scaled subjects in one format with gradients at `lossScale`, by {@link judgePrediction}'s rules
+ * and thresholds, subject by subject in `order`: index i < sites.length is site i, the rest tensor i − sites.length.
+ * `visit` gets each finding with its subject's index and returns false to stop: a caller comparing scales stops one
+ * once it cannot do better.
+ */
+export function judgeScaled(
+  subjects: ScaledSubjects,
+  format: FormatName,
+  lossScale: number,
+  thresholds: Partial<RiskThresholds> | undefined,
+  order: readonly number[],
+  visit: (finding: Finding, subject: number) => boolean,
+): void {
+  const complete = thresholdsOf(thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...thresholds });
+  const settings = formatSettings(subjects.spec.precision, [format], complete);
+  const setting = settings[0] as FormatSetting;
+  setting.lossScale = lossScale;
+  let context: HazardContext | undefined;
+  const sites = subjects.sites.length;
+  for (const i of order) {
+    if (i < sites) {
+      const { site, origin } = subjects.sites[i] as ScaledSubjects["sites"][number];
+      context ??= hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
+      for (const f of evaluateHazard(site, context, origin).findings) if (f.format === format && !visit(f, i)) return;
+      continue;
+    }
+    for (const risk of judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false).risks) {
+      if (risk.format !== format) continue;
+      for (const f of risk.findings) if (!visit(f, i)) return;
+    }
+  }
 }
 
 /** What every tensor's judgement in one format shares: the plan it is judged under, its range, its scaling. */

@@ -13,6 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
+import { findingsTotal, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
@@ -45,6 +46,11 @@ export interface LossScaleAnswer {
   remedies: ScaleRemedy[];
   /** the simulated dynamic scale; null unless asked for or the window is empty (it is then a remedy) */
   dynamic: DynamicScaleResult | null;
+  /**
+   * present when the window's centre left findings that move with the scale: the pick is then the scale of the window
+   * with the fewest (src/scale/pick.ts), and this says how many the centre and the pick leave
+   */
+  weighing?: PickWeighing;
 }
 
 export interface LossScaleOptions {
@@ -509,6 +515,41 @@ function settledWords(dynamic: DynamicScaleResult): string {
   return `it settles at ${scaleWords(low)}`;
 }
 
+/**
+ * The answer with its pick weighed (src/scale/pick.ts): the window's pick and margins moved to `pickLog2`, and the
+ * sentences told again with what the weighing found.
+ */
+export function withWeighedPick(answer: LossScaleAnswer, pickLog2: number, weighing: PickWeighing): LossScaleAnswer {
+  const w = answer.window;
+  const window: ScaleWindow = { ...w, pickLog2, marginBelowOverflow: w.highestLog2! - pickLog2, marginAboveFlush: pickLog2 - w.lowestLog2! };
+  return {
+    ...answer,
+    window,
+    pick: 2 ** pickLog2,
+    weighing,
+    sentences: describe(window, answer.format, answer.options, answer.requested, weighing),
+  };
+}
+
+function findingWords(f: ScaledFindings): string {
+  const total = findingsTotal(f);
+  const s = total === 1 ? "" : "s";
+  if (total === 0) return "no finding";
+  if (f.atRisk === 0) return `${total} failing finding${s}`;
+  if (f.fails === 0) return `${total} finding${s} at risk`;
+  return `${total} findings (${f.fails} failing, ${f.atRisk} at risk)`;
+}
+
+// what the weighing found, as one sentence after the pick's
+function weighingSentence(window: ScaleWindow, weighing: PickWeighing, options: WindowOptions, pow: (k: number) => string): string {
+  const on = "on the gradients and the scaled loss (judged against the check's per-tensor thresholds)";
+  if (weighing.centreLog2 === window.pickLog2) {
+    return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer without more overflow.`;
+  }
+  const closer = window.marginBelowOverflow! < options.marginBinades ? `, closer to the overflow edge than the ${binades(options.marginBinades)} kept otherwise` : "";
+  return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick)}, the fewest of the window's scales without more overflow${closer}.`;
+}
+
 function binades(n: number): string {
   return `${n} binade${n === 1 ? "" : "s"}`;
 }
@@ -518,6 +559,7 @@ function describe(
   format: FormatName,
   options: WindowOptions,
   requested: LossScaleAnswer["requested"],
+  weighing?: PickWeighing,
 ): string[] {
   const out: string[] = [];
   const pow = (k: number) => `2^${k} = ${powerOfTwoValue(k)}`;
@@ -536,13 +578,14 @@ function describe(
     out.push(
       everywhere
         ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within bounds.`
-        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, 1 among them; ${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides.`,
+        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, 1 among them; ${weighing !== undefined && weighing.centreLog2 !== window.pickLog2 ? `the pick is ${pow(window.pickLog2!)}` : `${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides`}.`,
     );
   } else {
     out.push(
       `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick sits ${binades(window.marginAboveFlush!)} above the flush edge and ${binades(window.marginBelowOverflow!)} below the overflow edge.`,
     );
   }
+  if (!window.empty && weighing !== undefined) out.push(weighingSentence(window, weighing, options, pow));
   if (requested) {
     // the window's edges use the whole-model budget and a per-gradient energy tolerance, looser than the check's
     // per-tensor thresholds: a scale inside it can still carry tensor findings, which the sentence must not deny

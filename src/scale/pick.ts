@@ -1,0 +1,152 @@
+/**
+ * The loss-scale pick weighed against the check's own thresholds. The window's edges use a whole-model overflow
+ * budget and a per-gradient flushing tolerance (src/scale/window.ts), looser than the thresholds each tensor and
+ * operation is judged by, so the window's centre can leave findings (a gradient's share flushed or subnormal, the
+ * scaled loss overflowing) that another scale inside the window would not. Where the centre leaves any, the scales
+ * of the window are compared and the one with the fewest findings is picked.
+ */
+import type { FormatName } from "../formats/names.js";
+import type { Prediction, TensorPrediction } from "../magnitude/types.js";
+import { judgeScaled, LOSS_SCALED_ROLES, scaledSubjects, type CheckOptions, type CheckResult, type Finding, type FindingKind, type ScaledSubjects } from "../risk/index.js";
+import type { NetworkSpec } from "../spec/types.js";
+import type { ScaleWindow } from "./window.js";
+
+/** Findings that move with the loss scale, in one format, counted by severity. */
+export interface ScaledFindings {
+  fails: number;
+  atRisk: number;
+  /** of these, the findings of the overflow side (a value too large), which a larger scale makes worse */
+  overflowSide: number;
+}
+
+/** How the pick was weighed: present on an answer whose window's centre leaves findings that move with the scale. */
+export interface PickWeighing {
+  /** the window's own pick: its centre, kept the margin below the overflow edge when the window allows */
+  centreLog2: number;
+  /** the findings that move with the scale at the centre, and at the pick (the same when the centre is kept) */
+  atCentre: ScaledFindings;
+  atPick: ScaledFindings;
+}
+
+// the operations whose findings move with the loss scale: the scaled loss, and gradients summed across workers or
+// steps (src/risk/hazards.ts multiplies only these by the scale)
+const SCALED_HAZARD_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["loss-value-overflow", "gradient-sum-overflow", "gradient-sum-flush"]);
+const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow", "saturation", "little-headroom", "loss-value-overflow", "gradient-sum-overflow"]);
+
+/**
+ * The findings of a judgement in `format` that move with the loss scale: those of the gradient tensors, and of the
+ * operations on the scaled loss and gradients; `subjects`, when given, receives the ids of the tensors and the layers
+ * of the operations that have them.
+ */
+export function scaledFindings(result: CheckResult, format: FormatName, subjects?: { tensors: Set<string>; sites: Set<string> }): ScaledFindings {
+  const gradients = new Set<string>();
+  for (const t of result.tensors) if (LOSS_SCALED_ROLES.includes(t.role)) gradients.add(t.id);
+  const counted = none();
+  for (const f of result.formats.find((c) => c.format === format)?.findings ?? []) {
+    if (f.source === "tensor" ? gradients.has(f.subject) : SCALED_HAZARD_KINDS.has(f.kind)) {
+      add(counted, f);
+      (f.source === "tensor" ? subjects?.tensors : subjects?.sites)?.add(f.subject);
+    }
+  }
+  return counted;
+}
+
+function none(): ScaledFindings {
+  return { fails: 0, atRisk: 0, overflowSide: 0 };
+}
+
+function add(counted: ScaledFindings, f: Finding): void {
+  if (f.severity === "fails") counted.fails++;
+  else counted.atRisk++;
+  if (OVERFLOW_KINDS.has(f.kind)) counted.overflowSide++;
+}
+
+export function findingsTotal(f: ScaledFindings): number {
+  return f.fails + f.atRisk;
+}
+
+// whether a count is strictly better than another: fewer failing, then fewer at risk
+function fewer(a: ScaledFindings, b: ScaledFindings): boolean {
+  return a.fails < b.fails || (a.fails === b.fails && a.atRisk < b.atRisk);
+}
+
+/**
+ * The pick of a window weighed against the findings that move with the scale. `atCentre` is what the window's own pick
+ * leaves, with the tensors and operation layers that have them (from the check's judgement when it was judged there; else it is
+ * judged here). The other exponents of the
+ * window are judged on the gradients and the scaled operations alone, and the pick is the one with
+ *   1. no more findings of the overflow side than the centre (overflow under a static scale gives inf or NaN and a
+ *      lost step; flushing costs precision, so the centre's margin below overflow is not traded for it), then
+ *   2. the fewest failing findings, then the fewest at risk, then
+ *   3. the centre's margin below the overflow edge kept, then the nearest the centre, then the larger scale (a scale
+ *      costs nothing until it overflows, Micikevicius et al. 2018 §3.2).
+ * An exponent's judgement stops once its findings so far cannot beat the best (the tensors that had findings at an
+ * exponent judged before go first), which gives the same pick as judging every exponent whole.
+ * Returns null when the window is empty or the centre leaves no such finding (the centre stands unweighed).
+ */
+export function weighPick(
+  spec: NetworkSpec,
+  prediction: Prediction,
+  format: FormatName,
+  window: ScaleWindow,
+  marginBinades: number,
+  options: CheckOptions,
+  atCentre?: { findings: ScaledFindings; tensors: ReadonlySet<string>; sites: ReadonlySet<string> },
+): { pickLog2: number; weighing: PickWeighing } | null {
+  if (window.empty || window.pickLog2 === null) return null;
+  const centre = window.pickLog2;
+  const lowest = window.lowestLog2!;
+  const highest = window.highestLog2!;
+  let subjects: ScaledSubjects | undefined;
+  // the subjects (sites, then tensors) that had a finding at some exponent judged go first in every later judgement
+  const first: number[] = [];
+  let seen = new Uint8Array(0);
+  const judge = (log2: number, stop: ((found: ScaledFindings) => boolean) | null): ScaledFindings => {
+    if (subjects === undefined) {
+      const made = scaledSubjects(spec, prediction);
+      const sites = made.sites.length;
+      seen = new Uint8Array(sites + made.tensors.length);
+      const hadFinding = (i: number) =>
+        i < sites ? atCentre?.sites.has((made.sites[i] as ScaledSubjects["sites"][number]).site.layer) === true : atCentre?.tensors.has((made.tensors[i - sites] as TensorPrediction).id) === true;
+      for (let i = 0; i < seen.length; i++) {
+        if (hadFinding(i)) {
+          seen[i] = 1;
+          first.push(i);
+        }
+      }
+      subjects = made;
+    }
+    const order = [...first];
+    for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order.push(i);
+    const found = none();
+    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i) => {
+      add(found, f);
+      if (seen[i] === 0) {
+        seen[i] = 1;
+        first.push(i);
+      }
+      return stop === null || !stop(found);
+    });
+    return found;
+  };
+  const centreFindings = atCentre?.findings ?? judge(centre, null);
+  if (findingsTotal(centreFindings) === 0) return null;
+
+  let best = centre;
+  let bestFindings = centreFindings;
+  const keepsMargin = (k: number) => highest - k >= marginBinades;
+  // rule 3.: the margin kept, then the distance, then the larger scale (the centre stays among equals)
+  const rank = (k: number) => (keepsMargin(k) ? 0 : 1e6) + Math.abs(k - centre) * 2 + (k < centre ? 1 : 0);
+  const candidates: number[] = [];
+  for (let k = lowest; k <= highest; k++) if (k !== centre) candidates.push(k);
+  candidates.sort((a, b) => rank(a) - rank(b));
+  for (const k of candidates) {
+    // a count that already has more overflow findings than the centre, or no fewer findings than the best, stops
+    const found = judge(k, (so) => so.overflowSide > centreFindings.overflowSide || !fewer(so, bestFindings));
+    if (found.overflowSide > centreFindings.overflowSide || !fewer(found, bestFindings)) continue;
+    best = k;
+    bestFindings = found;
+    if (findingsTotal(found) === 0) break;
+  }
+  return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings } };
+}

@@ -1,0 +1,125 @@
+import { readFileSync } from "node:fs";
+import { describe, expect, it } from "vitest";
+import { check, type CheckAnswer } from "../../src/check.js";
+import type { FormatName } from "../../src/formats/names.js";
+import { renderCheckText } from "../../src/report/check-text.js";
+import { parseSpec } from "../../src/spec/index.js";
+import type { NetworkSpec } from "../../src/spec/types.js";
+
+// The weighed pick (src/scale/pick.ts) is checked against the check itself: the spec judged at every scale of the
+// window as a given loss scale, all tensors and operations, the findings that move with the scale counted here by
+// their own rule (gradient tensors; the scaled loss and gradient sums). The rule of the pick is ours (README "Loss
+// scale"); what it rests on: a scale costs nothing until it overflows (Micikevicius et al. 2018 §3.2).
+
+function load(name: string): NetworkSpec {
+  const parsed = parseSpec(readFileSync(`specs/${name}`, "utf8"), `specs/${name}`);
+  if (!parsed.ok) throw new Error(`specs/${name} does not load`);
+  return parsed.spec;
+}
+
+interface Counted {
+  fails: number;
+  atRisk: number;
+  overflowSide: number;
+}
+
+const SCALED_OPERATIONS = ["loss-value-overflow", "gradient-sum-overflow", "gradient-sum-flush"];
+const OVERFLOW = ["overflow", "saturation", "little-headroom", "loss-value-overflow", "gradient-sum-overflow"];
+
+function counted(result: CheckAnswer, format: FormatName): Counted {
+  const gradients = new Set(result.tensors.filter((t) => t.role === "activation-gradient" || t.role === "weight-gradient").map((t) => t.id));
+  const findings = result.formats
+    .filter((f) => f.format === format)
+    .flatMap((f) => f.findings)
+    .filter((f) => (f.source === "tensor" ? gradients.has(f.subject) : SCALED_OPERATIONS.includes(f.kind)));
+  return {
+    fails: findings.filter((f) => f.severity === "fails").length,
+    atRisk: findings.filter((f) => f.severity === "at-risk").length,
+    overflowSide: findings.filter((f) => OVERFLOW.includes(f.kind)).length,
+  };
+}
+
+/** Every exponent of the answer's window, the spec judged there as a given scale. */
+function everyScale(spec: NetworkSpec, plan: string | undefined, answer: NonNullable<CheckAnswer["lossScaleAnswer"]>): Map<number, Counted> {
+  const out = new Map<number, Counted>();
+  for (let k = answer.window.lowestLog2!; k <= answer.window.highestLog2!; k++) {
+    out.set(k, counted(check(spec, { ...(plan === undefined ? {} : { plan }), lossScale: 2 ** k }), answer.format));
+  }
+  return out;
+}
+
+const better = (a: Counted, b: Counted) => a.fails < b.fails || (a.fails === b.fails && a.atRisk < b.atRisk);
+
+describe("the loss-scale pick weighed against the findings it leaves", () => {
+  it("deep-relu-glorot: the centre 2^17 leaves failing gradient findings, and the pick moves to the scale that leaves the fewest", () => {
+    const spec = load("deep-relu-glorot.yaml");
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    expect(weighing).toBeDefined();
+    const byScale = everyScale(spec, undefined, answer);
+    const centre = byScale.get(weighing.centreLog2)!;
+    const pick = answer.window.pickLog2!;
+    // the counts the answer tells are those of the whole check at each scale
+    expect(weighing.atCentre).toEqual(centre);
+    expect(weighing.atPick).toEqual(byScale.get(pick));
+    // no scale of the window without more overflow findings than the centre leaves fewer than the pick
+    for (const [k, found] of byScale) {
+      if (found.overflowSide <= centre.overflowSide) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
+    }
+    // here the centre is not the best: the pick moved, and the check is judged at the new pick
+    expect(better(weighing.atPick, centre)).toBe(true);
+    expect(pick).not.toBe(weighing.centreLog2);
+    expect(result.lossScale).toMatchObject({ value: 2 ** pick, origin: "recommended" });
+    expect(counted(result, answer.format)).toEqual(weighing.atPick);
+    // the pick keeps within the window
+    expect(pick).toBeGreaterThanOrEqual(answer.window.lowestLog2!);
+    expect(pick).toBeLessThanOrEqual(answer.window.highestLog2!);
+    expect(answer.window.marginBelowOverflow).toBe(answer.window.highestLog2! - pick);
+    expect(answer.window.marginAboveFlush).toBe(pick - answer.window.lowestLog2!);
+    // the text says what the centre would leave and what the pick leaves
+    const text = renderCheckText(result, { width: 1000 });
+    expect(text).toContain(`Use a static loss scale of 2^${pick} = ${2 ** pick}`);
+    expect(text).toContain(`alone gives 2^${weighing.centreLog2} = ${2 ** weighing.centreLog2}, which would leave ${centre.fails + centre.atRisk} findings (${centre.fails} failing, ${centre.atRisk} at risk)`);
+  });
+
+  it("wide-classifier: every scale of the window leaves a finding, so the centre stays and the answer says so", () => {
+    const spec = load("wide-classifier.yaml");
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    const byScale = everyScale(spec, undefined, answer);
+    const centre = byScale.get(weighing.centreLog2)!;
+    expect(answer.window.pickLog2).toBe(weighing.centreLog2);
+    expect(weighing.atCentre).toEqual(centre);
+    for (const [k, found] of byScale) {
+      if (found.overflowSide <= centre.overflowSide) expect(better(found, centre), `2^${k}`).toBe(false);
+    }
+    // scales below the centre keep the scaled loss in range but leave a gradient subnormal (as many findings, fewer
+    // overflowing): ties keep the centre
+    expect([...byScale.values()].some((f) => f.overflowSide < centre.overflowSide && !better(centre, f))).toBe(true);
+    expect(answer.sentences.join(" ")).toContain("no other scale in the window leaves fewer without more overflow");
+  });
+
+  it("a plan with a loss scale of its own: the answer's pick is weighed, the check stays at the given scale", () => {
+    const spec = load("transformer-encoder.yaml");
+    const result = check(spec, { plan: "mixed-binary16" });
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    expect(result.lossScale).toMatchObject({ value: 1024, origin: "plan" });
+    const byScale = everyScale(spec, "mixed-binary16", answer);
+    const centre = byScale.get(weighing.centreLog2)!;
+    expect(weighing.atCentre).toEqual(centre);
+    expect(weighing.atPick).toEqual(byScale.get(answer.window.pickLog2!));
+    for (const [k, found] of byScale) {
+      if (found.overflowSide <= centre.overflowSide) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
+    }
+    expect(better(weighing.atPick, centre)).toBe(true);
+  });
+
+  it("a spec whose centre leaves no such finding keeps the centre, unweighed", () => {
+    const result = check(load("deep-relu-he.yaml"));
+    expect(result.lossScaleAnswer!.weighing).toBeUndefined();
+    expect(result.lossScaleAnswer!.sentences.join(" ")).toContain("the window's centre, leaves the most room on both sides");
+  });
+});
