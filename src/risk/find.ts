@@ -50,11 +50,16 @@ export function findTensor(tensors: readonly TensorCheck[], query: string, limit
   if (ofLayer.length === 1) return { ok: true, tensor: ofLayer[0] as TensorCheck };
   if (ofLayer.length > 1) return { ok: false, reason: "ambiguous", candidates: ofLayer.map((t) => t.id) };
 
+  // a layer named inside a repeat or a block is known by its name alone ("hear" for stack.0.use-0.hear): a layer whose
+  // last name is the one typed comes first, with the role typed before the others
+  const named = split === null ? null : { layer: (split[1] as string).toLowerCase(), role: split[2] as string };
   const needle = text.toLowerCase();
   const scored = tensors
     .map((tensor) => {
       const id = tensor.id.toLowerCase();
-      const contains = id.includes(needle) || (needle.length >= 3 && needle.includes(tensor.layer.toLowerCase()));
+      const layer = tensor.layer.toLowerCase();
+      if (named !== null && named.layer !== "" && layer.endsWith(`.${named.layer}`)) return { id: tensor.id, score: tensor.role === named.role ? -2 : -1 };
+      const contains = id.includes(needle) || (needle.length >= 3 && needle.includes(layer));
       return { id: tensor.id, score: contains ? 0 : distance(needle, id) };
     })
     .sort((a, b) => a.score - b.score || a.id.localeCompare(b.id));

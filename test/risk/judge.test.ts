@@ -16,6 +16,7 @@ import { trainingSites } from "../../src/risk/judge.js";
 import { weightGradientsOf } from "../../src/risk/second-moments.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
+import { check } from "../../src/check.js";
 
 const SPEC_TEXT = `name: tiny
 input: { features: 64 }
@@ -293,6 +294,25 @@ describe("findTensor", () => {
     expect(!ambiguous.ok && ambiguous.reason).toBe("ambiguous");
     const missing = findTensor(tensors, "dense-9/weight");
     expect(!missing.ok && missing.candidates[0]).toBe("dense-0/weight");
+  });
+
+  it("suggests the tensors of a layer named inside repeats by its own name, the role typed first", () => {
+    const parsed = parseSpec(
+      [
+        "input: { features: 16 }",
+        "training: { batch: 4, loss: { kind: cross-entropy, classes: 4 } }",
+        "layers:",
+        "  - { type: repeat, name: stack, times: 2, layers: [{ type: residual, name: hear, branch: [{ type: dense, width: 16 }] }] }",
+        "  - { type: dense, name: out, width: 4 }",
+      ].join("\n"),
+      "r.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const all = check(parsed.spec).tensors;
+    const lookup = findTensor(all, "hear activation");
+    expect(lookup.ok).toBe(false);
+    expect(!lookup.ok && lookup.candidates.slice(0, 2)).toEqual(["stack.0.hear/activation", "stack.1.hear/activation"]);
+    expect(!lookup.ok && lookup.candidates.slice(2, 4)).toEqual(["stack.0.hear/activation-gradient", "stack.1.hear/activation-gradient"]);
   });
 });
 
