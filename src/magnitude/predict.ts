@@ -7,7 +7,7 @@
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
-import { maybeWeight, textOf } from "../ops/common.js";
+import { fmt, maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
@@ -494,7 +494,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     "activations",
     [1],
     profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
-    build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${seed.value.toPrecision(4)} at the median draw`, source: seed.source }], true) : null,
+    build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${fmt(seed.value)} at the median draw`, source: lossValueSource(training.loss) }], true) : null,
   );
   if (training.loss.reduction === "sum") {
     p.hazards.push({
@@ -652,4 +652,11 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
     if (other !== undefined) (hazards[i] as HazardSite).end = { input: other.input, output: other.output };
   }
   return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };
+}
+
+/** Where the loss value's rule comes from: the loss's definition (the seed's source is that of its gradient). */
+function lossValueSource(loss: NetworkSpec["training"]["loss"]): string {
+  return loss.kind === "cross-entropy"
+    ? "cross-entropy −ln p_y: the mean log-sum-exp of the logits at the start (definition; Gaussian softmax moments by Laplace-transform quadrature, Cressie et al. 1981)"
+    : "mean squared error: the mean square of y − t per term (definition), summed over the terms with reduction sum";
 }

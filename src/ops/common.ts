@@ -44,11 +44,15 @@ export function maybeWeight(layer: GraphLayer, name: string): GraphWeight | unde
   return undefined;
 }
 
-/** Format a number for a ledger rule: 4 significant digits, exponent form when far from 1. */
+/**
+ * Format a number for a ledger rule: 4 significant digits, exponent form when far from 1, written as every other
+ * number headroom prints (1.638e4, not toExponential's 1.638e+4).
+ * @example fmt(16384) // => "1.638e4"
+ */
 export function fmt(value: number): string {
   if (value === 0 || !Number.isFinite(value)) return String(value);
   const a = Math.abs(value);
-  return a >= 1e4 || a < 1e-3 ? value.toExponential(3) : Number(value.toPrecision(4)).toString();
+  return a >= 1e4 || a < 1e-3 ? value.toExponential(3).replace("e+", "e") : Number(value.toPrecision(4)).toString();
 }
 
 /**

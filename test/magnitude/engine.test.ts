@@ -280,6 +280,25 @@ describe("the example specs", () => {
   });
 });
 
+describe("ledger wording of large numbers", () => {
+  test("an embedding multiplier of 128 reads 1.638e4 in its rule, not toExponential's 1.638e+4", () => {
+    // 128² = 16384 (the rule shows var_table·multiplier²)
+    const p = run(makeSpec([embedding("e", 64, 16, normalInit(1), 128), dense("out", 8, lecun)], { input: tokens(4), loss: crossEntropy(8) }));
+    const rule = p.tensors.find((t) => t.id === "e/activation")!.ledger.map((entry) => entry.rule).join(" | ");
+    expect(rule).toContain("1.638e4");
+    expect(rule).not.toContain("e+");
+  });
+
+  test("a summed squared error's loss value reads without e+, and cites the loss's definition, not its gradient", () => {
+    // 32 samples × 64 outputs = 2048 terms, each about 1 (output) + 4 (target scale 2) = 5: about 1e4 in all
+    const p = run(makeSpec([dense("out", 64, lecun)], { loss: mse(2, "sum") }));
+    const [entry] = p.tensors.find((t) => t.id === "loss/loss")!.ledger;
+    expect(entry?.rule).toMatch(/^loss value \d\.\d{3}e4 at the median draw$/);
+    expect(entry?.source).toContain("(definition)");
+    expect(entry?.source).not.toContain("gradient");
+  });
+});
+
 describe("the assumptions listed", () => {
   test("name the token-use assumption only for a network that looks up tokens", () => {
     const token = /^Token ids are taken as used uniformly/;
