@@ -43,6 +43,18 @@ export function strongestFactors(ledger: readonly LedgerEntry[], count = 3): { s
 }
 
 /**
+ * Where the tensor is held, as its risk lines below judge it: the plan entry's format, or the formats that judge it
+ * when they are others (the loss, kept in the accumulate format; a format given with --format in place of the plan's).
+ */
+function whereHeld(result: CheckResult, tensor: TensorCheck): string {
+  const planned = result.plan[tensor.slot];
+  const judged = tensor.risks.filter((risk) => risk.judged).map((risk) => risk.format);
+  if (judged.includes(planned)) return `held in the plan's ${tensor.slot} (${planned})`;
+  if (judged.length === 0) return `held in none of the formats judged (the plan's ${tensor.slot} are ${planned})`;
+  return `judged in ${judged.join(", ")} (the plan's ${tensor.slot} are ${planned})`;
+}
+
+/**
  * Render the ledger and the risk of one tensor of a check.
  * @example renderExplainText(result, result.tensors[0]) // => "headroom explain: ... \n"
  */
@@ -51,7 +63,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
   const width = options.width ?? 100;
   const backward = tensor.role.endsWith("gradient") || (tensor.ledger ?? []).some((entry) => entry.layer === "loss");
   let out = style.role("heading", `headroom explain: ${tensor.id}`) + ` (${result.spec.name}, ${result.spec.source})\n`;
-  out += `  ${tensor.role} of ${tensor.layer} (${tensor.family}), shape [${tensor.shape.join(", ")}], held in the plan's ${tensor.slot} (${result.plan[tensor.slot]}).\n`;
+  out += `  ${tensor.role} of ${tensor.layer} (${tensor.family}), shape [${tensor.shape.join(", ")}], ${whereHeld(result, tensor)}.\n`;
 
   out += "\n" + style.role("strong", `Ledger: from the ${backward ? "loss" : "input"} to this tensor, at the start of training`) + "\n";
   const ledger = tensor.ledger ?? [];

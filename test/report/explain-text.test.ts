@@ -84,3 +84,16 @@ describe("renderExplainText total", () => {
     expect(text).not.toContain("2^-0.00");
   });
 });
+
+describe("renderExplainText: where the tensor is held", () => {
+  it("names the formats that judge the loss when it is not the plan entry's (the loss is kept in binary32 here)", () => {
+    const loss = result.tensors.find((t) => t.id === "loss/loss")!;
+    const judged = loss.risks.filter((r) => r.judged).map((r) => r.format);
+    expect(judged).not.toContain("e4m3");
+    const header = renderExplainText(result, loss, { width: 400 }).split("\n")[1];
+    expect(header).toBe(`  loss of loss (loss), shape [1], judged in ${judged.join(", ")} (the plan's activations are e4m3).`);
+    // a tensor judged in its plan entry's format reads as before
+    const weight = result.tensors.find((t) => t.id === "dense-0/weight")!;
+    expect(renderExplainText(result, weight, { width: 400 }).split("\n")[1]).toBe("  weight of dense-0 (dense), shape [256, 256], held in the plan's weights (e4m3).");
+  });
+});
