@@ -350,7 +350,8 @@ function formatsTable(model: ReportModel): string {
       const range = r
         ? `<td class="num">${powerHtml(round1(r.smallestLog2))}</td><td class="num">${powerHtml(round1(r.minNormalLog2))}</td><td class="num">${e(formatValue(r.largest, 5))}</td>`
         : `<td></td><td></td><td></td>`;
-      return `<tr><td>${e(f.format)}</td><td>${e(f.roles.join(", "))}</td><td><span class="pill ${verdictClass(f.verdict)}">${e(verdictWords(f.verdict))}</span></td>${range}</tr>`;
+      const roles = (f.planned === false ? "in place of the plan's formats: " : "") + f.roles.join(", ");
+      return `<tr><td>${e(f.format)}</td><td>${e(roles)}</td><td><span class="pill ${verdictClass(f.verdict)}">${e(verdictWords(f.verdict))}</span></td>${range}</tr>`;
     })
     .join("");
   return (
@@ -502,7 +503,7 @@ export function renderHtmlReport(model: ReportModel): string {
     `<dt>tensors</dt><dd>${model.tensors.length}</dd></dl></header>`,
     `<section class="verdict ${verdictClass(model.verdict)}" aria-labelledby="verdict"><h2 id="verdict">Verdict</h2>`,
     `<p class="verdict-word">${e(capitalised(verdictWords(model.verdict)))}</p>${reasons}<p class="caveat">${e(CAVEAT)}</p></section>`,
-    `<section aria-labelledby="formats"><h2 id="formats">Formats in the plan</h2>${formatsTable(model)}</section>`,
+    `<section aria-labelledby="formats"><h2 id="formats">${model.formats.every((f) => f.planned !== false) ? "Formats in the plan" : "Formats judged"}</h2>${formatsTable(model)}</section>`,
     `<section aria-labelledby="bands"><h2 id="bands">Where each tensor sits</h2>${bandSection(model)}</section>`,
     `<section aria-labelledby="scale"><h2 id="scale">Loss scale</h2>${[model.lossScale, ...(model.moreLossScales ?? [])].map(namedLossScaleSection).join("")}</section>`,
     `<section aria-labelledby="ledger"><h2 id="ledger">How the worst tensor got its size</h2>${ledgerSection(model.ledger)}</section>`,

@@ -39,7 +39,8 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
     [{ title: "format" }, { title: "holds" }, { title: "verdict" }, { title: "why" }],
     result.formats.map((f) => [
       f.format,
-      f.holds.map((entry) => ENTRY_WORDS[entry] ?? entry).join(", "),
+      // a format judged with --format stands in for the plan's, as the terminal text says
+      (f.planned ? "" : "in place of the plan's formats: ") + f.holds.map((entry) => ENTRY_WORDS[entry] ?? entry).join(", "),
       { markdown: EMPHASIS[f.verdict] },
       f.reasons.length > 0 ? f.reasons.join("\n") : "",
     ]),

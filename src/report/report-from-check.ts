@@ -120,7 +120,7 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
     plan: result.plan.name,
     verdict: result.verdict,
     reasons: [...new Set(reasons)],
-    formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h) })),
+    formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h), planned: f.planned })),
     ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => ENTRY_WORDS[h] ?? h))),
     tensors: result.tensors.map((t) => band(result, t)),
     lossScale: scales[0] as ReportLossScale,

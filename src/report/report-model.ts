@@ -96,8 +96,8 @@ export interface ReportModel {
   verdict: SummaryVerdict;
   /** the top reasons for the verdict, one sentence each */
   reasons: string[];
-  /** the verdict of each planned format */
-  formats: { format: string; verdict: SummaryVerdict; roles: string[] }[];
+  /** the verdict of each format judged; `planned` false for one judged in place of the plan's (--format; absent: planned) */
+  formats: { format: string; verdict: SummaryVerdict; roles: string[]; planned?: boolean }[];
   ranges: ReportFormatRange[];
   tensors: ReportTensorBand[];
   lossScale: ReportLossScale;

@@ -101,6 +101,21 @@ describe("the formats table of a report", () => {
   });
 });
 
+describe("the formats table of a report judging formats in place of the plan's", () => {
+  test("is headed 'Formats judged' and says the format stands in for the plan's; a plain report keeps 'Formats in the plan'", async () => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { loadSpec } = await import("../../src/spec/index.js");
+    const loaded = await loadSpec(new URL("../../specs/cnn-batchnorm.yaml", import.meta.url).pathname);
+    if (!loaded.ok) throw new Error("example does not load");
+    const other = renderHtmlReport(reportModel(check(loaded.spec, { formats: ["bfloat16"] }), { version: "test" }));
+    expect(other).toContain(`<h2 id="formats">Formats judged</h2>`);
+    expect(other).toContain("<td>bfloat16</td><td>in place of the plan&#39;s formats: activations, weights, gradients</td>");
+    const plain = renderHtmlReport(reportModel(check(loaded.spec), { version: "test" }));
+    expect(plain).toContain(`<h2 id="formats">Formats in the plan</h2>`);
+  });
+});
+
 describe("the loss-scale section of a check with no static scale", () => {
   test("gives the reason once and the remedies, as the terminal does", async () => {
     const { readFileSync } = await import("node:fs");

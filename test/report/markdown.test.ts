@@ -73,3 +73,13 @@ describe("renderCheckMarkdown names the loss scale it judged", () => {
     expect(renderCheckMarkdown(recommended)).not.toContain("Gradients judged at");
   });
 });
+
+describe("renderCheckMarkdown with formats judged in place of the plan's", () => {
+  test("says a format not in the plan stands in for the plan's, as the terminal text does", () => {
+    const parsed = parseSpec(readFileSync("specs/cnn-batchnorm.yaml", "utf8"), "specs/cnn-batchnorm.yaml");
+    if (!parsed.ok) throw new Error("the example does not parse");
+    const md = renderCheckMarkdown(check(parsed.spec, { formats: ["bfloat16"] }));
+    expect(md).toContain("| bfloat16 | in place of the plan's formats: activations, weights, gradients |");
+    expect(renderCheckMarkdown(check(parsed.spec))).toContain("| binary16 | activations, weights, gradients |");
+  });
+});
