@@ -109,7 +109,10 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
   const worstTensor = findings.find((f) => f.source === "tensor");
   const ledgerTensor = worstTensor ? result.tensors.find((t) => t.id === worstTensor.subject) : undefined;
   // the optimizer's reasons and an empty loss-scale window count in the verdict too
-  const optimizerReasons = "optimizer" in result && result.optimizer.verdict !== "fits" ? result.optimizer.reasons : [];
+  // listed as sentences beside the formats' reasons: they open with a capital as those do ("weight decay steps ..." is
+  // a list item under the terminal's Optimizer heading)
+  const optimizerReasons =
+    "optimizer" in result && result.optimizer.verdict !== "fits" ? result.optimizer.reasons.map((r) => r.charAt(0).toUpperCase() + r.slice(1)) : [];
   const scales = lossScaleModels(result);
   const scaleReasons = scales.flatMap((s) => (s.summary.status === "empty" ? [s.summary.reason] : []));
   const reasons = [...result.formats.flatMap((f) => f.reasons), ...scaleReasons, ...optimizerReasons];

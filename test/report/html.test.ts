@@ -116,6 +116,31 @@ describe("the formats table of a report judging formats in place of the plan's",
   });
 });
 
+describe("the verdict's reasons of a report", () => {
+  test("open with a capital, the optimizer's too", async () => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { parseSpec } = await import("../../src/spec/index.js");
+    // AdamW's decay step lr·λ = 1e-3·0.01 = 1e-5 of a weight is below half an ulp of binary16 (2^-12 relative, IEEE
+    // 754-2019 p = 11): lost without a master copy
+    const parsed = parseSpec(
+      [
+        "input: { features: 64 }",
+        "training: { batch: 32, loss: { kind: cross-entropy, classes: 10 }, optimizer: { kind: adamw, learning-rate: 1.0e-3 } }",
+        "precision: { activations: binary16, master-weights: none }",
+        "layers: [{ type: dense, width: 10 }]",
+      ].join("\n"),
+      "decay.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const result = check(parsed.spec);
+    expect(result.optimizer.reasons.some((r) => r.startsWith("weight decay steps"))).toBe(true);
+    const model = reportModel(result, { version: "test" });
+    expect(model.reasons.some((r) => r.startsWith("Weight decay steps"))).toBe(true);
+    for (const reason of model.reasons) expect(reason.charAt(0), reason).not.toMatch(/[a-z]/);
+  });
+});
+
 describe("the loss-scale section of a check with no static scale", () => {
   test("gives the reason once and the remedies, as the terminal does", async () => {
     const { readFileSync } = await import("node:fs");
