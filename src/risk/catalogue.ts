@@ -50,8 +50,8 @@ export const FINDING_INFO = {
     description:
       "At least one element exceeds the largest finite value of a saturating 8-bit conversion and is " +
       "clipped to it. Clipping does not produce infinities, but it distorts the largest values. At risk " +
-      "above a per-step probability of 1e-6, fails above 1e-2. Usual remedy: per-tensor scaling, or a margin " +
-      "in the scale factor.",
+      "above a per-step probability of 1e-6 (1e-3 under per-tensor scale factors, whose rule clips about once " +
+      "per 1,000 steps), fails above 1e-2. Usual remedy: per-tensor scaling, or a margin in the scale factor.",
   },
   "little-headroom": {
     title: "Little headroom",

@@ -305,7 +305,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   }
   const assumptions: string[] = [];
   for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
-  checkAssumptions(assumptions, plan, settings, scales, training.length > 0);
+  checkAssumptions(assumptions, plan, settings, scales, training.length > 0, thresholds);
 
   return {
     version: 2,
@@ -775,6 +775,7 @@ function checkAssumptions(
   settings: readonly FormatSetting[],
   scales: readonly AppliedLossScale[],
   addedSites: boolean,
+  thresholds: RiskThresholds,
 ): void {
   const lossScale = scales[0] as AppliedLossScale;
   if (lossScale.origin === "none") {
@@ -827,7 +828,10 @@ function checkAssumptions(
     notes.push(
       plan.scaling === "none"
         ? "8-bit formats are judged without scale factors."
-        : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (with per-block scaling, flushing and clipping follow the rule for blocks of 32 elements of Gaussian-like values)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.`,
+        : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (with per-block scaling, flushing and clipping follow the rule for blocks of 32 elements of Gaussian-like values)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.` +
+            (plan.scaling === "tensor" && plan.overflow === "saturate"
+              ? ` The predicted max is the level passed once in ${plainNumber(1 / thresholds.maxQuantile)} steps, so a tensor's largest elements are clipped about that often by the scale rule itself; saturation counts as a finding only when it comes more often (above ${plainNumber(Math.max(thresholds.overflowAtRisk, thresholds.maxQuantile))} per step).`
+              : ""),
     );
   }
   if (addedSites) {

@@ -291,9 +291,13 @@ function tensorFindings(
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
   // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
   // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed
-  const overflow = grade(worst.overflowRisk, t.overflowAtRisk, t.overflowFails);
+  // a per-tensor scale set from the level passed once in 1/maxQuantile steps has a saturating conversion clip the
+  // elements above it about that often: the scale rule at work (SCIENCE.md §3.4, "overflow a clipping event"), not a
+  // finding until saturation comes more often than the rule allows; overflow to infinity or NaN is judged as always
+  const overflowAtRisk = options.perTensorScaling && limits.saturates ? Math.max(t.overflowAtRisk, t.maxQuantile) : t.overflowAtRisk;
+  const overflow = grade(worst.overflowRisk, overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
-    const threshold = overflow === "fails" ? t.overflowFails : t.overflowAtRisk;
+    const threshold = overflow === "fails" ? t.overflowFails : overflowAtRisk;
     findings[found++] = {
       format,
       subject,

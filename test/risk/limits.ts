@@ -48,3 +48,7 @@ export const E4M3_SATURATING: RangeLimits = {
   smallest: 2 ** -9,
   unitRoundoff: 2 ** -4,
 };
+
+// the non-saturating conversion: 464 rounds to 448 (ties to even), anything above is NaN (OCP 8-bit specification,
+// SCIENCE.md check value 13)
+export const E4M3_NAN: RangeLimits = { ...E4M3_SATURATING, overflowLevel: 464, saturates: false };

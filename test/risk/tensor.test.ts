@@ -11,7 +11,7 @@ import {
   tensorStatistics,
   type RiskThresholds,
 } from "../../src/risk/index.js";
-import { BFLOAT16_FTZ, BINARY16, E4M3_SATURATING } from "./limits.js";
+import { BFLOAT16_FTZ, BINARY16, E4M3_NAN, E4M3_SATURATING } from "./limits.js";
 
 function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
   return { elements: 1e5, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
@@ -137,6 +137,31 @@ describe("tensorFormatRisk", () => {
     // max of 1e5 Gaussians exceeded once in 1000 steps ≈ 100·5.7; 2^⌊log2(448/570)⌋ = 2^-1, so saturation needs 8.96σ
     expect(risk.scaleLog2.start).toBe(-1);
     expect(risk.verdict).toBe("fits");
+  });
+
+  // A per-tensor scale set from the level passed once in 1,000 steps (maxQuantile) lets the step's largest elements
+  // pass the format's max about that often. A saturating conversion clips them (OCP 8-bit specification: 465 → 448
+  // when saturating, NaN otherwise; SCIENCE.md §3.4 "overflow a clipping event, not a NaN"): the scale rule at work,
+  // not a finding. The same elements converted without saturation become NaN: an overflow finding.
+  it("per-tensor scaling with no margin left by the power-of-two floor: saturation by the rule is no finding, NaN is", () => {
+    const unit = tensor({ role: "activation", slot: "activations", start: profile({}), end: profile({}) });
+    const rms = 440 / tensorStatistics(unit, 1, DEFAULT_THRESHOLDS).start.max;
+    const t = tensor({ role: "activation", slot: "activations", start: profile({ rms }), end: profile({ rms }) });
+    const stats = tensorStatistics(t, 1, DEFAULT_THRESHOLDS);
+    expect(stats.start.max).toBeCloseTo(440, 6);
+    const saturating = tensorFormatRisk(t, E4M3_SATURATING, stats, { ...options, perTensorScaling: true });
+    // 2^⌊log2(448/440)⌋ = 2^0: the max stays at 440, 1.8% under 448
+    expect(saturating.scaleLog2.start).toBe(0);
+    expect(saturating.worst.overflowRisk).toBeGreaterThan(1e-4);
+    expect(saturating.worst.overflowRisk).toBeLessThan(DEFAULT_THRESHOLDS.maxQuantile);
+    expect(saturating.findings).toEqual([]);
+    expect(saturating.verdict).toBe("fits");
+    const nan = tensorFormatRisk(t, E4M3_NAN, stats, { ...options, perTensorScaling: true });
+    expect(nan.worst.overflowRisk).toBeGreaterThan(DEFAULT_THRESHOLDS.overflowAtRisk);
+    expect(nan.findings.map((f) => [f.kind, f.severity])).toEqual([["overflow", "at-risk"]]);
+    // with no per-tensor scale (a fixed range, no rule that accepts it), the same chance of saturation is a finding
+    const unscaled = tensorFormatRisk(t, E4M3_SATURATING, stats, options);
+    expect(unscaled.findings.map((f) => f.kind)).toContain("saturation");
   });
 
   it("a format that does not hold the tensor reports numbers but no findings", () => {
