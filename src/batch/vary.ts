@@ -348,7 +348,9 @@ function replaceValue(
 ): TextEdit {
   if (isAlias(node)) throw new VaryError(`--vary ${key}: ${describePath(path)} is an alias (*${node.source}); vary the anchored value instead`);
   if (node !== null && node !== undefined && !isScalar(node)) {
-    throw new VaryError(`--vary ${key}: ${describePath(path)} holds a map or list; --vary sets single values`);
+    // the precision plan is the map a sweep most often means to swap: the option that does that is --plan
+    const plan = path.length === 1 && path[0] === "precision" ? "; to judge one of the spec's plans use --plan NAME, or vary precision.activations and the other entries" : "";
+    throw new VaryError(`--vary ${key}: ${describePath(path)} holds a map or list; --vary sets single values${plan}`);
   }
   const scalarText = yamlScalarText(value);
   const range = isScalar(node) ? node.range : undefined;

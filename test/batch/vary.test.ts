@@ -156,7 +156,11 @@ describe("varyText", () => {
     expect(err("training.bacth=8")).toThrow("--vary training.bacth: the spec has no key training.bacth");
     expect(err("layers[7].width=5")).toThrow("--vary layers[7].width: layers has 3 items, so there is no layers[7]");
     expect(err("layers[1].width=5")).toThrow(/layers\[1\] is a single value \("relu"\)/);
-    expect(err("training=5")).toThrow(/holds a map or list/);
+    expect(err("training=5")).toThrow(/holds a map or list; --vary sets single values$/);
+    // a plan is swapped with --plan: the error says so
+    expect(err("precision=mixed")).toThrow(
+      "--vary precision: precision holds a map or list; --vary sets single values; to judge one of the spec's plans use --plan NAME, or vary precision.activations and the other entries",
+    );
     expect(err("training[0]=5")).toThrow(/is a map of keys, not a list/);
   });
   test("a misspelt key gets the nearest key at its level, from the file or the schema, as a whole key", () => {
