@@ -114,6 +114,9 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   const plans =
     options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s)) && !own.some((p) => p.name === s.name)), ...own];
 
+  // every plan stores the same tensors: the all-binary32 bytes, the "saved" column's reference, follow from any
+  // plan's check, whether or not the all-binary32 plan is among those compared (--only-spec-plans)
+  let referenceBytes: number | null = null;
   const outcomes = plans.map((plan): PlanOutcome => {
     const planned: NetworkSpec = { ...spec, precision: plan };
     // one check per plan: it predicts, answers the loss scale (judging at its pick when the plan gives none) and
@@ -124,6 +127,10 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
     const lossScale = result.lossScale.origin === "none" ? null : result.lossScale.value;
     const verdict = result.verdict;
     const cost = planCost(spec, plan, result);
+    if (referenceBytes === null) {
+      const reference = planCost(spec, STANDARD_PLANS[0] as PrecisionPlan, result);
+      referenceBytes = reference.parameterBytes + reference.activationBytes;
+    }
     return {
       plan,
       fromSpec: own.includes(plan),
@@ -138,8 +145,6 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       savedShare: 0,
     };
   });
-  const reference = outcomes.find((o) => o.plan.name === "binary32") ?? null;
-  const referenceBytes = reference ? reference.cost.parameterBytes + reference.cost.activationBytes : null;
   for (const o of outcomes) {
     if (referenceBytes) o.savedShare = 1 - (o.cost.parameterBytes + o.cost.activationBytes) / referenceBytes;
   }

@@ -60,6 +60,18 @@ describe("plan costs", () => {
     const bare = comparePlans(loaded.spec, { plans: only("bfloat16 only") }).outcomes[0]!;
     expect(bare.cost.bytesPerParameter).toBe(8);
   });
+
+  it("gives the memory saved against all binary32 even when that plan is not among those compared (--only-spec-plans)", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/wide-classifier.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const bare = comparePlans(loaded.spec, { plans: STANDARD_PLANS.filter((p) => p.name === "bfloat16 only") }).outcomes[0]!;
+    // 8 bytes per parameter against 16, 2 per activation element against 4: saved 1 − (8P + 2A)/(16P + 4A) = 1/2 exactly
+    expect(bare.savedShare).toBeCloseTo(0.5, 12);
+    // and the same share as when the all-binary32 plan is compared beside it
+    const beside = comparePlans(loaded.spec, { plans: STANDARD_PLANS.filter((p) => p.name === "bfloat16 only" || p.name === "binary32") });
+    expect(beside.outcomes.find((o) => o.plan.name === "bfloat16 only")!.savedShare).toBe(bare.savedShare);
+  });
 });
 
 describe("headroom compare (the built binary)", () => {
