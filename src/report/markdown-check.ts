@@ -64,6 +64,14 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   const named = namesGradientFormats(result);
   if (scales.length === 0) out += lossScaleLine("Loss scale", { status: "not-evaluated" });
   else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s);
+  // the optimizer counts in the verdict: a verdict it alone sets would otherwise have no reason on the page
+  if ("optimizer" in result && result.optimizer.verdict !== "fits") {
+    const optimizer = result.optimizer;
+    out += `\nOptimizer ${optimizer.kind}: ${EMPHASIS[optimizer.verdict]}.\n`;
+    for (const reason of optimizer.reasons) out += `- ${escapeMarkdown(reason)}\n`;
+    if (optimizer.reportedAsHazards.length > 0) out += "- its states' findings (optimizer epsilon, second moment) are told as operation findings above.\n";
+    if (optimizer.remedies.length > 0) out += `- first remedy: ${escapeMarkdown(optimizer.remedies[0] as string)}\n`;
+  }
   // a scale given by the plan or the command line is the one judged, whatever the window's pick: say so
   const applied = result.lossScale;
   if (applied.origin === "plan" || applied.origin === "option") {

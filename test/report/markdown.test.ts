@@ -83,3 +83,32 @@ describe("renderCheckMarkdown with formats judged in place of the plan's", () =>
     expect(renderCheckMarkdown(check(parsed.spec))).toContain("| binary16 | activations, weights, gradients |");
   });
 });
+
+describe("renderCheckMarkdown: the optimizer's part of the verdict", () => {
+  test("a verdict only the optimizer sets gives its reason and first remedy; one that fits adds nothing", () => {
+    // SGD with lr 1e-6 on a bfloat16 master copy: updates of about 1e-6·|g| are far below half an ulp of weights near
+    // 0.1 (2^-9 relative, p = 8; SCIENCE.md §1.1 swamping), so most are lost
+    const text = (lr: string, master: string) =>
+      [
+        "input: { features: 64 }",
+        `training: { batch: 32, loss: { kind: cross-entropy, classes: 10 }, optimizer: { kind: sgd, learning-rate: ${lr} } }`,
+        `precision: { activations: bfloat16, master-weights: ${master} }`,
+        "layers: [{ type: dense, width: 10 }]",
+      ].join("\n");
+    const parsed = parseSpec(text("1.0e-6", "bfloat16"), "sgd.yaml");
+    if (!parsed.ok) throw new Error("does not parse");
+    const result = check(parsed.spec);
+    expect(result.formats.every((f) => f.verdict === "fits")).toBe(true);
+    expect(result.optimizer.verdict).not.toBe("fits");
+    const md = renderCheckMarkdown(result);
+    expect(md).toContain(`\nOptimizer sgd: **${result.optimizer.verdict === "fails" ? "fails" : "at risk"}**.\n`);
+    expect(md).toContain(`- ${escapeMarkdown(result.optimizer.reasons[0]!)}\n`);
+    expect(md).toContain("- first remedy: ");
+    // lr 0.1 into a binary32 master copy (half an ulp is 2^-25 of a weight, IEEE 754-2019 p = 24): nothing lost
+    const kept = parseSpec(text("0.1", "binary32"), "sgd.yaml");
+    if (!kept.ok) throw new Error("does not parse");
+    const fine = check(kept.spec);
+    expect(fine.optimizer.verdict).toBe("fits");
+    expect(renderCheckMarkdown(fine)).not.toContain("Optimizer sgd");
+  });
+});
