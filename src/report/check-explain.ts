@@ -20,6 +20,9 @@ function binadeWords(value: number | null): string {
   return value === null ? "n/a (all zeros)" : `${formatBinades(value)} binades`;
 }
 
+// the rule column's width in the ledger table; longer rules are cut there and given in full under it
+const RULE_WIDTH = 60;
+
 // log2 factors are shown with two decimals: one below half the last digit reads as 0.00 and moves nothing visibly
 const SHOWN_LOG2 = 0.005;
 
@@ -99,12 +102,18 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
         { title: "log2", align: "right" },
         { title: "multiplier", align: "right" },
         { title: "running log2", align: "right" },
-        { title: "rule", maxWidth: 60 },
+        { title: "rule", maxWidth: RULE_WIDTH },
         { title: "source", align: "left" },
       ],
       rows,
       { indent: "  ", styleHeader: (text) => style.role("strong", text) },
     );
+    // a rule cut to the column loses its numbers at the end: the cut ones are given in full, by row number
+    const cut = ledger.map((entry, index) => ({ entry, index })).filter(({ entry }) => [...entry.rule].length > RULE_WIDTH);
+    if (cut.length > 0) {
+      out += "  Rules cut above, in full:\n";
+      for (const { entry, index } of cut) out += wrap(entry.rule, width, `    ${index + 1}. `, "       ");
+    }
     out += "  Sources:\n";
     for (let i = 0; i < sources.length; i++) out += wrap(sources[i] as string, width, `    [${i + 1}] `, "        ");
     const total = ledger.reduce((sum, entry) => sum + entry.log2Factor, 0);

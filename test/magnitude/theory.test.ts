@@ -195,6 +195,40 @@ describe("a rectifier before a max-pool", () => {
   });
 });
 
+describe("the pools' ledger rules", () => {
+  // the max of k iid N(0, 1) has density k·φ(x)·Φ(x)^(k−1) (order statistics, derived): E[M²] by a fine trapezoid
+  const maxSecondMoment = (k: number): number => {
+    const phi = (x: number) => Math.exp(-x * x / 2) / Math.sqrt(2 * Math.PI);
+    const steps = 40000;
+    const h = 16 / steps;
+    let cdf = 0;
+    let sum = 0;
+    for (let i = 0; i <= steps; i++) {
+      const x = -8 + i * h;
+      if (i > 0) cdf += ((phi(x - h) + phi(x)) / 2) * h;
+      sum += (i === 0 || i === steps ? 0.5 : 1) * x * x * k * phi(x) * cdf ** (k - 1) * h;
+    }
+    return sum;
+  };
+  const ruleOf = (p: Prediction, id: string) => (tensor(p, id).ledger.find((entry) => entry.layer === "p")?.rule ?? "");
+
+  test("a max-pool states the ratio it applies, E[M²]/E[x²], with its value; an average-pool what passes whole", () => {
+    const chain = (family: "max-pool" | "average-pool", activation: "tanh" | "relu") =>
+      run(
+        makeSpec([conv("c", 16), act("r", activation), pool("p", family, 2), flatten("f"), dense("out", 10, lecun)], {
+          input: image(4, 12, 12),
+          loss: crossEntropy(10),
+          training: { batch: 32 },
+        }),
+      );
+    const expected = maxSecondMoment(4);
+    expect(expected).toBeCloseTo(1.5513, 3);
+    expect(ruleOf(chain("max-pool", "tanh"), "p/activation")).toBe(`max of 4 Gaussians: E[M²]/E[x²] = ${Number(expected.toPrecision(4))}`);
+    expect(ruleOf(chain("max-pool", "relu"), "p/activation")).toMatch(/^max of 4 ReLU outputs: E\[M²\]\/E\[x²\] = \d/);
+    expect(ruleOf(chain("average-pool", "tanh"), "p/activation")).toMatch(/^average of 4: shared part kept, rest ÷ 4 = 0\.\d+$/);
+  });
+});
+
 describe("finite-width spread", () => {
   test("ReLU log-variance of the squared norm is 5·Σ1/n, so log2Spread = √(5L/n)/(2 ln 2) (Hanin & Nica 2019 form; SCIENCE.md §2.6, check 27)", () => {
     const width = 200;

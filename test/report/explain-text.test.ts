@@ -97,3 +97,16 @@ describe("renderExplainText: where the tensor is held", () => {
     expect(renderExplainText(result, weight, { width: 400 }).split("\n")[1]).toBe("  weight of dense-0 (dense), shape [256, 256], held in the plan's weights (e4m3).");
   });
 });
+
+describe("renderExplainText: long rules", () => {
+  it("gives a rule cut to the table's column in full under it, by row number, so its numbers are not lost", () => {
+    const tensor = result.tensors.find((t) => t.id === "relu-1/activation")!;
+    const long = "attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) = 0.0695 with ρ = 0.0123 over 100.5 keys at the median draw";
+    const ledger = [entry("short", 1), { ...entry("long", -1), rule: long }];
+    const text = renderExplainText(result, { ...tensor, ledger }, { width: 400 });
+    expect(text).toContain("  Rules cut above, in full:\n    2. " + long + "\n");
+    expect(text).not.toContain("    1. r\n");
+    // none cut, no list
+    expect(renderExplainText(result, { ...tensor, ledger: [entry("short", 1)] }, { width: 400 })).not.toContain("Rules cut above");
+  });
+});

@@ -68,7 +68,8 @@ export const poolRule: AnalyticRule<null> = {
       const shared = Math.min(positionCorrelationOf(input) * input.q, input.q);
       q = (input.q - shared) / k + shared;
       zeroFraction = Math.pow(input.zeroFraction, k);
-      rule = `average of ${k}: variance ÷ ${k}`;
+      // the printed ratio is q_out/q_in, not the variance's ÷ k: say what passes whole
+      rule = `average of ${k}: shared part kept, rest ÷ ${k}`;
       source = AVERAGE_SOURCE;
     } else {
       const order = maxOfNormals(k);
@@ -83,7 +84,7 @@ export const poolRule: AnalyticRule<null> = {
         q = input.mean * input.mean + 2 * input.mean * sigma * order.m1 + variance * order.m2;
         mean = input.mean + sigma * order.m1;
       }
-      rule = `max of ${k}: E[M²] of ${k} Gaussians`;
+      rule = input.shape === "half-gaussian" && input.zeroFraction >= 0.5 ? `max of ${k} ReLU outputs: E[M²]/E[x²]` : `max of ${k} Gaussians: E[M²]/E[x²]`;
       source = MAX_SOURCE;
     }
     const output: Signal = {
