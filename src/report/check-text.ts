@@ -361,8 +361,12 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
       "muted",
       wrap(
         "rms and max are after the loss scale, at the start→end of the horizon; max is the level the largest element " +
-          `passes once in ${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom are in binades; ` +
-          "flushed is the share of nonzero elements that round to zero.",
+          `passes once in ${formatValue(1 / result.thresholds.maxQuantile)} steps; headroom and footroom are in binades` +
+          // an 8-bit conversion with scale factors multiplies by 2^k first: log2(448 / max) is not what the column holds
+          (shown.some((row) => row.risk.scaleLog2.start !== 0 || row.risk.scaleLog2.end !== 0)
+            ? ", after the per-tensor scale factor of an 8-bit format (rms and max are before it)"
+            : "") +
+          "; flushed is the share of nonzero elements that round to zero.",
         width,
         "  ",
         "  ",

@@ -61,6 +61,15 @@ describe("the tensor table's legend", () => {
     expect(none).not.toContain(legend);
     expect(renderCheckText(check(example("deep-sigmoid.yaml")), { width: 400 })).toContain(legend);
   });
+
+  it("says headroom is after the per-tensor scale factor when an 8-bit format with scale factors is in the table", () => {
+    // e4m3's largest finite value is 448 (OCP 8-bit spec, Table 1): a tensor of max 12 scaled by 2^5 has log2(448/384)
+    // = 0.22 binades of headroom, not log2(448/12) = 5.2; the legend must say which one the column holds
+    const scaled = "after the per-tensor scale factor of an 8-bit format (rms and max are before it)";
+    const text = renderCheckText(check(example("transformer-encoder.yaml"), { plan: "eight-bit-trial" }), { all: true, width: 400 });
+    expect(text).toContain(scaled);
+    expect(renderCheckText(check(example("deep-sigmoid.yaml")), { width: 400 })).not.toContain(scaled);
+  });
 });
 
 describe("hazard lines name the kind of their site", () => {
