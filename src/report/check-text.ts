@@ -108,15 +108,22 @@ export function describeLossScale(scale: AppliedLossScale, formats?: readonly st
       return `${head}: ${formatValue(scale.value)} (from the plan).`;
     case "option":
       return `${head}: ${formatValue(scale.value)} (from the command line).`;
-    case "recommended":
+    case "recommended": {
+      // what sets each edge, when known; no empty "()" when neither is
+      const edges = [
+        window?.lowerEdgeSetBy ? `below it ${window.lowerEdgeSetBy} flushes` : "",
+        window?.upperEdgeSetBy ? `above it ${window.upperEdgeSetBy} overflows` : "",
+      ].filter((clause) => clause !== "");
+      // "1 lies in the window too" only beside another pick: a pick of 2^0 is 1 itself
+      const unscaledToo = (window?.lowestLog2 ?? 1) <= 0 && 0 <= (window?.highestLog2 ?? -1) && window?.pickLog2 !== 0;
       return (
         `${head}: none in the plan; judged with the recommended 2^${window?.pickLog2} = ${formatValue(scale.value)}, ` +
         `inside the window ${power(window?.lowestLog2 ?? null)} to ${power(window?.highestLog2 ?? null)}` +
-        (window?.lowerEdgeSetBy ? ` (below it ${window.lowerEdgeSetBy} flushes` : " (") +
-        (window?.upperEdgeSetBy ? `${window?.lowerEdgeSetBy ? "; " : ""}above it ${window.upperEdgeSetBy} overflows)` : ")") +
-        ((window?.lowestLog2 ?? 1) <= 0 && 0 <= (window?.highestLog2 ?? -1) ? "; 1 (no scaling) lies in the window too" : "") +
+        (edges.length > 0 ? ` (${edges.join("; ")})` : "") +
+        (unscaledToo ? "; 1 (no scaling) lies in the window too" : "") +
         "."
       );
+    }
     case "none":
       if (window === undefined) return `${head}: none given, gradients judged unscaled.`;
       return (

@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
+import { describeLossScale, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -232,5 +232,20 @@ describe("wrap", () => {
 
   it("keeps the first word beside a head that leaves room for it", () => {
     expect(wrap("one two three", 80, "  - ", "    ")).toBe("  - one two three\n");
+  });
+});
+
+describe("the loss-scale line under the plan", () => {
+  const window = { format: "binary16" as const, lowestLog2: -16, highestLog2: 16, pickLog2: 0, empty: false, upperEdgeSetBy: "d/weight-gradient", lowerEdgeSetBy: "d/activation-gradient" };
+  it("does not add '1 (no scaling) lies in the window too' when the pick is 2^0 = 1 itself", () => {
+    const line = describeLossScale({ value: 1, origin: "recommended", window });
+    expect(line).toBe(
+      "loss scale: none in the plan; judged with the recommended 2^0 = 1, inside the window 2^-16 to 2^16 (below it d/activation-gradient flushes; above it d/weight-gradient overflows).",
+    );
+    expect(describeLossScale({ value: 512, origin: "recommended", window: { ...window, pickLog2: 9 } })).toContain("overflows); 1 (no scaling) lies in the window too.");
+  });
+  it("writes no empty parentheses when no tensor sets either edge", () => {
+    const line = describeLossScale({ value: 512, origin: "recommended", window: { ...window, lowestLog2: 1, pickLog2: 9, upperEdgeSetBy: null, lowerEdgeSetBy: null } });
+    expect(line).toBe("loss scale: none in the plan; judged with the recommended 2^9 = 512, inside the window 2^1 to 2^16.");
   });
 });
