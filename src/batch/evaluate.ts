@@ -15,8 +15,11 @@ export interface SpecTask {
   variant: Variant | null;
 }
 
-/** What evaluating a task gives: a summary (or what the judge gave), or the error that stopped it. */
-export type TaskResult<T = SpecSummary> = { status: "ok"; summary: T } | TaskFailure;
+/**
+ * What evaluating a task gives: a summary (or what the judge gave), with the spec's warnings when it has any (each a
+ * `file:line:column: key.path: message` line, at the line of the user's file), or the error that stopped it.
+ */
+export type TaskResult<T = SpecSummary> = { status: "ok"; summary: T; warnings?: string[] } | TaskFailure;
 
 /** The error that stopped a task. */
 export type TaskFailure = { status: "error"; error: RowError };
@@ -140,7 +143,12 @@ export async function evaluateText<T = SpecSummary>(file: string, original: stri
     return at.line > 0 ? { ...at, line: originalLine(at.line) } : at;
   };
   try {
-    return { status: "ok", summary: await hooks.judge(parsed.spec, locate) };
+    const summary = await hooks.judge(parsed.spec, locate);
+    // a spec that loads with a warning (a warm-up past the horizon, a final loss not below ln(classes)) is judged as
+    // written; the warning travels with its row, as a plain check prints it
+    if (parsed.warnings.length === 0) return { status: "ok", summary };
+    const warnings = parsed.warnings.map((issue) => formatSpecIssue(issue.line > 0 ? { ...issue, line: originalLine(issue.line) } : issue));
+    return { status: "ok", summary, warnings };
   } catch (error) {
     const located = positionedIssues(error, locate, file);
     if (located) return { status: "error", error: issuesError(located) };

@@ -91,7 +91,11 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
     if (!outcome.ok) {
       rows[index] = { index, file, variant, status: "error", error: { kind: "internal", message: `${task.file}: ${outcome.error}` } };
     } else if (outcome.value.status === "ok") {
-      rows[index] = { index, file, variant, status: "ok", summary: outcome.value.summary };
+      const warnings = outcome.value.warnings;
+      rows[index] =
+        warnings === undefined
+          ? { index, file, variant, status: "ok", summary: outcome.value.summary }
+          : { index, file, variant, status: "ok", summary: outcome.value.summary, warnings };
     } else {
       rows[index] = { index, file, variant, status: "error", error: outcome.value.error };
     }

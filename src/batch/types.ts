@@ -77,7 +77,7 @@ export interface RowError {
 
 /** One row of a batch: a spec file, or one variant of it. */
 export type BatchRow =
-  | { index: number; file: string; variant: string | null; status: "ok"; summary: SpecSummary }
+  | { index: number; file: string; variant: string | null; status: "ok"; summary: SpecSummary; warnings?: string[] }
   | { index: number; file: string; variant: string | null; status: "error"; error: RowError };
 
 /**

@@ -58,6 +58,8 @@ export async function checkVariants(
       raiseExitCode(outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
       continue;
     }
+    // as a plain check prints its spec's warnings, each variant's, named by the variant
+    for (const warning of outcome.warnings ?? []) process.stderr.write(`warning: ${warning} [${variant.name}]\n`);
     out.push({ variant: variant.name, result: outcome.summary });
   }
   return out;

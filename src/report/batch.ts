@@ -107,6 +107,17 @@ export function batchCountLine(rows: readonly BatchRow[]): string {
   return `${c.total} ${c.total === 1 ? "spec" : "specs"}: ${parts.join(", ")}`;
 }
 
+/** Every warning of the rows, one line each, with the variant it came from. */
+function warningLines(rows: readonly BatchRow[]): string[] {
+  const lines: string[] = [];
+  for (const row of rows) {
+    if (row.status !== "ok" || row.warnings === undefined) continue;
+    const variant = row.variant ? ` [${row.variant}]` : "";
+    for (const warning of row.warnings) lines.push(`${warning}${variant}`);
+  }
+  return lines;
+}
+
 function errorLine(row: Extract<BatchRow, { status: "error" }>): string {
   const variant = row.variant ? ` [${row.variant}]` : "";
   const kind = row.error.kind === "internal" ? "internal error: " : "";
@@ -165,6 +176,11 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
     out += `\n${style.role("strong", "could not be evaluated")}\n`;
     for (const row of errors) out += `  ${errorLine(row)}\n`;
   }
+  const warned = warningLines(rows);
+  if (warned.length > 0) {
+    out += `\n${style.role("strong", "warnings (judged as written)")}\n`;
+    for (const line of warned) out += `  ${line}\n`;
+  }
   out += `\n${batchCountLine(rows)}. ${ESTIMATE_NOTE}\n`;
   return out;
 }
@@ -187,6 +203,8 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
         lossScale: s.lossScale,
         lossScales: s.lossScales ?? [],
         worst: s.worst,
+        // only on rows that have them, so the lines of other rows keep their bytes
+        ...(row.warnings !== undefined ? { warnings: row.warnings } : {}),
       });
     })
     .map((line) => line + "\n")
@@ -317,6 +335,11 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
   if (errors.length > 0) {
     out += "\nCould not be evaluated:\n\n";
     for (const row of errors) out += `- ${escapeMarkdown(errorLine(row))}\n`;
+  }
+  const warned = warningLines(rows);
+  if (warned.length > 0) {
+    out += "\nWarnings (judged as written):\n\n";
+    for (const line of warned) out += `- ${escapeMarkdown(line)}\n`;
   }
   out += `\n_${escapeMarkdown(ESTIMATE_NOTE)}_\n`;
   return out;

@@ -62,6 +62,19 @@ describe("evaluateTask", () => {
     const result = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw graphError; } });
     expect(result).toMatchObject({ error: { kind: "input", message: "a.yaml:10:27: layers[2].width: must equal the classes, 4", position: { line: 10, column: 27 } } });
   });
+  test("a spec that loads with a warning keeps it on its row, at the line of the user's file, a variant's too", async () => {
+    // an untrained classifier's cross-entropy is about ln(classes) (uniform predictions): 2 is not below ln(4) = 1.39
+    const text = spec("w", 8).replace("  loss:", "  horizon: { steps: 100, final-loss: 2 }\n  loss:");
+    const warnedHooks = { ...hooks, readText: () => text };
+    const plain = await evaluateTask({ file: "w.yaml", variant: null }, warnedHooks);
+    expect(plain).toMatchObject({ status: "ok", warnings: [expect.stringMatching(/^w\.yaml:5:\d+: training\.horizon\.final-loss: the final loss 2 is not below the starting loss ln\(4\)/)] });
+    // a variant that adds a key above it keeps the user's line numbers
+    const [variant] = variantsOf([parseVaryOption("training.workers=2")]);
+    const varied = await evaluateTask({ file: "w.yaml", variant: variant! }, warnedHooks);
+    expect(varied.status === "ok" && varied.warnings?.[0]).toMatch(/^w\.yaml:5:\d+: training\.horizon\.final-loss/);
+    // none for a spec without warnings
+    expect(await evaluateTask({ file: "a.yaml", variant: null }, hooks)).not.toHaveProperty("warnings");
+  });
   test("issuesError counts the other problems", () => {
     const error = issuesError([
       { file: "f.yaml", line: 2, column: 3, path: "a", message: "m1" },

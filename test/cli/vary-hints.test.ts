@@ -33,3 +33,20 @@ describe("--vary with a misspelt key", () => {
     expect(allowed.stderr).toBe("");
   });
 });
+
+describe("--vary with a value the spec loads with a warning", () => {
+  // an untrained classifier's cross-entropy is about ln(10) = 2.30 (uniform predictions): a final loss of 5 is not below it
+  const warning = `${SPEC}:24:17: training.horizon.final-loss: the final loss 5 is not below the starting loss ln(10) ≈ 2.30: gradients are taken not to shrink`;
+
+  it("check --vary prints the variant's warning on stderr, named by the variant, as a plain check prints a spec's", () => {
+    const run = runCli(["check", SPEC, "--json", "--vary", "training.horizon.final-loss=0.15,5"]);
+    expect(run.stderr).toBe(`warning: ${warning} [training.horizon.final-loss=5]\n`);
+  });
+
+  it("batch keeps it on the variant's row (JSON Lines) and lists it under the table", () => {
+    const rows = runCli(["batch", SPEC, "--jsonl", "--vary", "training.horizon.final-loss=0.15,5"]).stdout.trim().split("\n").map((line) => JSON.parse(line) as { warnings?: string[] });
+    expect(rows.map((row) => row.warnings)).toEqual([undefined, [warning]]);
+    const text = runCli(["batch", SPEC, "--vary", "training.horizon.final-loss=0.15,5"]).stdout;
+    expect(text).toContain(`warnings (judged as written)\n  ${warning} [training.horizon.final-loss=5]\n`);
+  });
+});

@@ -170,6 +170,21 @@ describe("renderBatchMarkdown", () => {
   });
 });
 
+describe("warnings of specs judged as written", () => {
+  const warning = "sweep/small.yaml:6:38: training.horizon.final-loss: the final loss 3 is not below the starting loss ln(4) ≈ 1.39: gradients are taken not to shrink";
+  const warned: BatchRow[] = [{ ...(ROWS[0] as Extract<BatchRow, { status: "ok" }>), variant: "training.batch=8", warnings: [warning] }, ROWS[1]!];
+  test("the text lists them under the table with their variant; Markdown likewise; JSON Lines on their row only", () => {
+    expect(renderBatchText(warned)).toContain(`\nwarnings (judged as written)\n  ${warning} [training.batch=8]\n`);
+    expect(renderBatchMarkdown(warned)).toContain(`\nWarnings (judged as written):\n\n- ${warning.replace("[", "\\[")} \\[training.batch=8\\]\n`);
+    const [first, second] = renderBatchJsonl(warned).trimEnd().split("\n").map((line) => JSON.parse(line));
+    expect(first.warnings).toEqual([warning]);
+    expect(second).not.toHaveProperty("warnings");
+    // rows without warnings render as before
+    expect(renderBatchText(ROWS)).not.toContain("warnings");
+    expect(renderBatchJsonl(ROWS)).not.toContain("warnings");
+  });
+});
+
 describe("countRows / batchCountLine", () => {
   test("counts outcomes", () => {
     expect(countRows(ROWS)).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0 });
