@@ -46,6 +46,11 @@ export interface UpdateLoss {
   compensated: number;
   /** with stochastic rounding nothing is lost in expectation; steps until rounding noise falls below 10% of the summed update */
   stochasticStepsToAverage: number;
+  /**
+   * present when `clip-norm` scales SGD's or momentum's gradients down at this point: the factor clip-norm / the
+   * predicted global gradient norm (below 1), and that norm. Adam's update m/√v does not change with it
+   */
+  clipped?: { factor: number; globalNorm: number };
 }
 
 /** One weight tensor and its optimizer states. */
@@ -192,8 +197,13 @@ function updateLoss(
   w: MagnitudeProfile,
   point: SchedulePointRate,
   updateFormat: Format,
+  clip: GradientClip | null,
 ): UpdateLoss {
-  const update = updateProfile(optimizer, point.at === "end" ? gradient.end : gradient.start, point.lr, point.firstStep);
+  const side = point.at === "end" ? "end" : "start";
+  const clipped = clip?.[side];
+  // clipping multiplies every gradient by one factor before the step; SGD's and momentum's updates follow it
+  const g = clipped !== undefined ? scaleProfile(gradient[side], clipped.factor) : gradient[side];
+  const update = updateProfile(optimizer, g, point.lr, point.firstStep);
   const lost = sums.lost(w, update);
   return {
     at: point.at,
@@ -205,7 +215,33 @@ function updateLoss(
     withBinary32Master: lost[1] as number,
     compensated: lost[3] as number,
     stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
+    ...(clipped !== undefined ? { clipped } : {}),
   };
+}
+
+/** Where `clip-norm` scales the gradients down, at each side of the horizon: the factor and the global norm. */
+type GradientClip = Partial<Record<"start" | "end", { factor: number; globalNorm: number }>>;
+
+/**
+ * Clipping to a global norm c multiplies every gradient by c/‖g‖ when ‖g‖ > c (common practice). ‖g‖² is predicted as
+ * the sum over the weight gradients of elements × their second moment (rms of the nonzero elements at the median
+ * draw, times the nonzero share), at each side of the horizon. Only SGD and momentum read it: Adam's m/√v is unchanged
+ * by a common factor (Kingma & Ba 2015, the update's scale invariance). Null when nothing is clipped.
+ */
+function gradientClip(optimizer: OptimizerSpec, pairs: readonly { gradient: TensorPrediction }[]): GradientClip | null {
+  const c = optimizer.clipNorm;
+  if (c === undefined || optimizer.kind === "adam" || optimizer.kind === "adamw") return null;
+  const clip: GradientClip = {};
+  for (const side of ["start", "end"] as const) {
+    let squares = 0;
+    for (let i = 0; i < pairs.length; i++) {
+      const p = (pairs[i] as { gradient: TensorPrediction }).gradient[side];
+      squares += p.elements * (1 - p.zeroFraction) * p.rms * p.rms;
+    }
+    const norm = Math.sqrt(squares);
+    if (norm > c) clip[side] = { factor: c / norm, globalNorm: norm };
+  }
+  return clip.start === undefined && clip.end === undefined ? null : clip;
 }
 
 /**
@@ -249,9 +285,10 @@ export function checkOptimizer(
   // for every weight
   const decayLost =
     optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(optimizer.learningRate.end * optimizer.weightDecay, updateFormat) : null;
-  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost };
-  const tensors: WeightOptimizerCheck[] = [];
   const pairs = weightPairs(prediction);
+  const clip = gradientClip(optimizer, pairs);
+  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip };
+  const tensors: WeightOptimizerCheck[] = [];
   for (let p = 0; p < pairs.length; p++) {
     const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
     tensors.push(weightCheck(context, weight, gradient));
@@ -330,6 +367,8 @@ interface WeightCheckContext {
   stateOverflow: number;
   adamLike: boolean;
   decayLost: number | null;
+  /** where clip-norm scales SGD's or momentum's gradients down (null: nowhere) */
+  clip: GradientClip | null;
 }
 
 // One weight and its optimizer states, in a function of its own: the per-weight work that gets hot, apart from the
@@ -339,7 +378,7 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
   // the weights at the end of the horizon have grown; their ulp with them
   const w = weight.end;
   const updates: UpdateLoss[] = [];
-  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat));
+  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat, c.clip));
   const firstMoment = adamLike
     ? scaleProfile(gradient.end, 1 - optimizer.betas[0])
     : optimizer.kind === "momentum"
@@ -513,11 +552,15 @@ function summarise(
   let lostUpdate: UpdateLoss | null = null;
   if (worst && worst.lostShare > OPTIMIZER_THRESHOLDS.lostAtRisk) {
     const uncounted = raise(worstPeak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk", updateFormat);
-    reasons.push(
-      `${sentenceStart(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${uncounted}`,
-    );
     const t = tensors.find((x) => x.weight === worst!.weight)!;
     lostUpdate = t.updates.find((x) => x.at === worst!.at)!;
+    // the updates are that small because clipping scaled the gradients: say so, with the numbers
+    const clipped = lostUpdate.clipped
+      ? ` The gradients are clipped there: clip-norm ${plainNumber(optimizer.clipNorm as number)} against a predicted global norm of ${plainNumber(lostUpdate.clipped.globalNorm)} scales them by ${plainNumber(lostUpdate.clipped.factor)}.`
+      : "";
+    reasons.push(
+      `${sentenceStart(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${clipped}${uncounted}`,
+    );
   }
   const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
   const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;

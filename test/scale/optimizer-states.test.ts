@@ -268,3 +268,44 @@ describe("checkOptimizer: bfloat16 states, figures and verdict on one bound", ()
     expect(result.remedies.join(" ")).toMatch(/raise epsilon to at least 1\.18e-38/);
   });
 });
+
+describe("checkOptimizer: gradient clipping", () => {
+  // 10^4 gradient elements of magnitude 0.1: global norm √(10^4·0.01) = 10 (derived). Clipping to 0.1 scales every
+  // gradient by 0.1/10 = 0.01 (common practice: g·c/‖g‖ when ‖g‖ > c)
+  const clipTo = (clipNorm: number | undefined, kind: OptimizerSpec["kind"] = "sgd"): OptimizerSpec => ({
+    ...adam,
+    kind,
+    learningRate: { peak: 1e-2, end: 1e-2 },
+    ...(clipNorm === undefined ? {} : { clipNorm }),
+  });
+  const net: Prediction = {
+    specName: "test",
+    tensors: [
+      tensor("dense-0/weight", "weight", { ...constant(1), elements: 1e4 }),
+      tensor("dense-0/weight-gradient", "weight-gradient", { ...constant(0.1), elements: 1e4 }),
+    ],
+    hazards: [],
+    assumptions: [],
+  };
+  const noMaster = { ...plan("binary32"), masterWeights: "none" as const };
+
+  it("SGD: an update of 1e-2·0.1 = 1e-3 survives half an ulp of 1.0 in binary16 (2^-11 = 4.9e-4, IEEE 754-2019 p = 11); clipped by 0.01 it is 1e-5 and lost", () => {
+    const free = checkOptimizer(clipTo(undefined), noMaster, net);
+    expect(free.tensors[0]!.updates[0]!.planned).toBe(0);
+    expect(free.tensors[0]!.updates[0]).not.toHaveProperty("clipped");
+    const clipped = checkOptimizer(clipTo(0.1), noMaster, net);
+    const update = clipped.tensors[0]!.updates[0]!;
+    expect(update.clipped?.globalNorm).toBeCloseTo(10, 12);
+    expect(update.clipped?.factor).toBeCloseTo(0.01, 12);
+    expect(update.updateRms).toBeCloseTo(1e-5, 15);
+    expect(update.planned).toBe(1);
+    expect(clipped.reasons[0]).toContain("The gradients are clipped there: clip-norm 0.1 against a predicted global norm of 10 scales them by 0.01.");
+    // a clip norm above the global norm changes nothing
+    expect(checkOptimizer(clipTo(20), noMaster, net).tensors[0]!.updates[0]).toEqual(free.tensors[0]!.updates[0]);
+  });
+
+  it("Adam's update m/√v is unchanged by a common factor (Kingma & Ba 2015): clipping changes nothing there", () => {
+    const free = checkOptimizer(clipTo(undefined, "adam"), noMaster, net);
+    expect(checkOptimizer(clipTo(0.1, "adam"), noMaster, net).tensors).toEqual(free.tensors);
+  });
+});
