@@ -29,6 +29,7 @@
 import type { LossSpec } from "../spec/types.js";
 import type { Gradient, Signal } from "../ops/types.js";
 import { gaussianSoftmaxMoments, gaussianSoftmaxPairMoment } from "../numeric/softmax.js";
+import { fmt } from "../ops/common.js";
 
 /** The loss value and the gradient tensors it seeds. */
 export interface LossSeed {
@@ -111,7 +112,7 @@ export function lossSeed(
         elements: N * (C - 1),
       },
       target: { gradient: { q: right.q, zeroFraction: 0, shape: "bounded", bound: Math.abs(k), logVar: right.logVar }, elements: N },
-      rule: `softmax cross-entropy over ${C} classes, ${loss.reduction} over ${N}, logit variance ${s2.toPrecision(3)} at the median draw: right class rms(1 − p)/${divisor} = ${(Math.sqrt(rightSecond(s2)) / divisor).toExponential(3)}, wrong classes rms(p)/${divisor} = ${(Math.sqrt(wrongSecond(s2)) / divisor).toExponential(3)}`,
+      rule: `softmax cross-entropy over ${C} classes, ${loss.reduction} over ${N}, logit variance ${fmt(s2)} at the median draw: right class rms(1 − p)/${divisor} = ${fmt(Math.sqrt(rightSecond(s2)) / divisor)}, wrong classes rms(p)/${divisor} = ${fmt(Math.sqrt(wrongSecond(s2)) / divisor)}`,
       source: "softmax cross-entropy gradient p − y (SCIENCE.md §2.1 output seed); Gaussian softmax moments by Laplace-transform quadrature (Cressie et al. 1981)",
     };
   }
@@ -134,7 +135,7 @@ export function lossSeed(
     terms: M,
     gradient,
     bulk: { gradient, elements: M },
-    rule: `mean squared error, ${loss.reduction} over ${M}, at the median draw: 2·rms(y − t)/${divisor} = ${(2 * Math.sqrt(residual) / divisor).toExponential(3)}`,
+    rule: `mean squared error, ${loss.reduction} over ${M}, at the median draw: 2·rms(y − t)/${divisor} = ${fmt((2 * Math.sqrt(residual)) / divisor)}`,
     source: "squared-error gradient 2(y − t) (common practice); median over draws of a log-normal output scale (SCIENCE.md §2.6)",
   };
 }

@@ -78,7 +78,7 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
   if (profile.zeroFraction > 0 && keep > 0 && meanSquare > 0) {
     out.push({
       layer: "(profile)",
-      rule: `exact zeros: the nonzero ${(keep * 100).toPrecision(3)}% carry the whole second moment`,
+      rule: `exact zeros: the nonzero ${Number((keep * 100).toPrecision(3))}% carry the whole second moment`,
       log2Factor: -0.5 * Math.log2(keep),
       source: "definition of rms over nonzero elements",
     });
@@ -88,7 +88,7 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
     const variance = (spread * 2 * Math.LN2) ** 2;
     out.push({
       layer: "(profile)",
-      rule: `finite width: the median draw sits e^(−V/4) below the mean, V = ${variance.toPrecision(3)}`,
+      rule: `finite width: the median draw sits e^(−V/4) below the mean, V = ${fmt(variance)}`,
       log2Factor: -variance / 4 / Math.LN2,
       source: "Hanin & Nica 2019, log-normal norm (SCIENCE.md §2.6)",
     });
@@ -421,7 +421,7 @@ const RESETS = new Set(["layer-norm", "rms-norm", "batch-norm", "embedding"]);
 function weightNode(layer: string, w: GraphWeight, variance: number, rms: number): LedgerNode {
   const init = w.init;
   const constant = w.distribution === "constant";
-  const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${variance.toPrecision(4)}`;
+  const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${fmt(variance)}`;
   return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
 }
 

@@ -297,6 +297,18 @@ describe("ledger wording of large numbers", () => {
     expect(entry?.source).toContain("(definition)");
     expect(entry?.source).not.toContain("gradient");
   });
+
+  test("no rule of a summed loss or a small variance reads toExponential's e+0 or toPrecision's 0.00000168", () => {
+    // the summed squared error's output gradient 2·rms(y − t) is about 2·√5 ≈ 4.5 (toExponential wrote 4.472e+0);
+    // a wide layer's finite-width variance is about 1e-6 (toPrecision wrote 0.00000168)
+    const p = run(makeSpec([dense("wide", 4096, he), act("r"), dense("out", 64, lecun)], { loss: mse(2, "sum") }));
+    const rules = p.tensors.flatMap((t) => t.ledger.map((entry) => entry.rule));
+    expect(rules.some((rule) => rule.startsWith("mean squared error, sum over"))).toBe(true);
+    for (const rule of rules) {
+      expect(rule).not.toContain("e+");
+      expect(rule).not.toMatch(/\b0\.0000\d/);
+    }
+  });
 });
 
 describe("the assumptions listed", () => {
