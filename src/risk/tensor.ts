@@ -370,6 +370,7 @@ function tensorFindings(
     };
   }
   if (worst.subnormalFraction > t.subnormalAtRisk) {
+    const at = moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt);
     findings[found++] = {
       format,
       subject,
@@ -378,10 +379,11 @@ function tensorFindings(
       severity: "at-risk",
       value: worst.subnormalFraction,
       threshold: t.subnormalAtRisk,
-      at: moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt),
+      at,
+      // when, as every other finding of a tensor says
       sentence: [
-        sentenceStart(percent(worst.subnormalFraction)), " of the nonzero elements of ", subject, " are subnormal in ", format,
-        ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
+        sentenceStart(percent(worst.subnormalFraction)), " of the nonzero elements of ", subject, " are subnormal in ", format, " ",
+        when(at), ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
       ].join(""),
     };
   }
