@@ -11,7 +11,7 @@ import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js"
 import { worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { distinctNumbers, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
+import { distinctNumbers, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -308,7 +308,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
     case SOFTMAX_GUARDED:
       return value > 0
         ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator sums ${site.terms} terms, ` +
-            `more than ${format} holds (${plainNumber(draft.criticalLevel as number)}).`
+            `more than ${format} holds (${limitNumber(draft.criticalLevel as number)}).`
         : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow ${format}.`;
     case SOFTMAX_EXP:
       return (
@@ -336,10 +336,14 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
     case LOSS_VALUE: {
-      const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
+      const critical = draft.criticalLevel as number;
+      const [digits, predicted] = distinctNumbers(critical, draft.extra);
+      const limit = Number.isInteger(critical) ? limitNumber(critical) : digits;
+      // what multiplies a term: the other terms of a sum, the loss scale (none said when it is 1)
+      const factors = [site.terms > 1 ? `${site.terms} terms summed` : "", context.lossScale !== 1 ? `times the loss scale ${scaleWords(context.lossScale)}` : ""].filter((x) => x !== "");
       return (
-        `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`} (${site.terms > 1 ? `${site.terms} terms summed, ` : ""}times the loss scale ` +
-        `${scaleWords(context.lossScale)}) overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
+        `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`}${factors.length > 0 ? ` (${factors.join(", ")})` : ""} ` +
+        `overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
         `(predicted ${predicted}); probability ${probabilityWords(value)} per step${side}` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );

@@ -35,6 +35,15 @@ export function numberInDigits(x: number, digits: number): string {
   return `${String(Number(mantissa))}e${Number(exponent)}`;
 }
 
+/**
+ * A format's limit as a sentence gives it: a whole number below 10^6 in full (binary16's overflow threshold is 65520,
+ * which three digits would write as 65500, a value binary16 holds), anything else as {@link plainNumber}.
+ * @example limitNumber(65520) // => "65520"; limitNumber(15.998046875) // => "16"
+ */
+export function limitNumber(x: number): string {
+  return Number.isInteger(x) && Math.abs(x) < 1e6 ? String(x) : plainNumber(x);
+}
+
 // at most this many significant digits to tell two numbers apart: past it they are equal for any reader's purpose
 const MOST_DIGITS = 6;
 

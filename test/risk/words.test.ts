@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { binades, distinctNumbers, numberInDigits, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
+import { binades, distinctNumbers, limitNumber, numberInDigits, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
 
 // The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
 // (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
@@ -132,5 +132,14 @@ describe("distinctNumbers", () => {
     expect(numberInDigits(2.4414e-4, 4)).toBe("2.441e-4");
     expect(numberInDigits(1234567, 4)).toBe("1.235e6");
     expect(numberInDigits(0.5, 3)).toBe(plainNumber(0.5));
+  });
+});
+
+describe("limitNumber", () => {
+  it("writes a whole-number limit in full: binary16's overflow threshold 65520 (IEEE 754-2019 Table 3.5 with RNE), not 65500", () => {
+    expect(limitNumber(65520)).toBe("65520");
+    expect(limitNumber(464)).toBe("464");
+    expect(limitNumber(15.998046875)).toBe(plainNumber(15.998046875));
+    expect(limitNumber(3.3961775292304601e38)).toBe("3.4e38");
   });
 });
