@@ -25,7 +25,7 @@ import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
 import { measureTensor, medianStats, selectElements } from "./stats.js";
-import type { MeasuredTensor, SimulateOptions, SimulationResult, StepRecord, TensorStats } from "./types.js";
+import type { MeasuredTensor, SimulateOptions, SimulationLossScaleOrigin, SimulationResult, StepRecord, TensorStats } from "./types.js";
 
 /** Default memory limit: 4 GiB. */
 export const DEFAULT_MEMORY_LIMIT = 4 * 2 ** 30;
@@ -454,6 +454,23 @@ export function resolvePlan(spec: NetworkSpec, name: string | undefined): Precis
   return plan;
 }
 
+/**
+ * The loss scale a run uses: the caller's, else the plan's, else the default's answer for the network as simulated,
+ * else 1. The default is asked of the simulated (shrunk) network, as the predictions compared with it are made for it.
+ */
+function chooseLossScale(
+  simulated: NetworkSpec,
+  plan: PrecisionPlan,
+  options: SimulateOptions,
+  shrunk: boolean,
+): { value: number; origin: SimulationLossScaleOrigin; reason?: string } {
+  if (options.lossScale !== undefined) return { value: options.lossScale, origin: "option" };
+  if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
+  if (options.defaultLossScale === undefined) return { value: 1, origin: "none" };
+  const answer = options.defaultLossScale(simulated, { plan, shrunk });
+  return { value: answer.value, origin: answer.origin, reason: answer.reason };
+}
+
 /** A rounding function for the accumulate format, or undefined for binary64 (no rounding needed). */
 function accumulator(format: Format, options: RoundOptions): RoundFunction | undefined {
   if (format.name === "binary64") return undefined;
@@ -482,7 +499,8 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
   }
   const graph = built.graph;
   const plan = resolvePlan(spec, options.plan);
-  const lossScale = options.lossScale ?? plan.lossScale ?? 1;
+  const scale = chooseLossScale(spec, plan, options, report.shrunk);
+  const lossScale = scale.value;
   if (!(lossScale > 0) || !Number.isFinite(lossScale)) throw new RangeError(`loss scale must be a finite number > 0, got ${String(lossScale)}`);
   const limit = options.memoryLimit ?? DEFAULT_MEMORY_LIMIT;
   const estimate = checkMemory(original, graph, steps, limit, report.shrunk);
@@ -567,6 +585,8 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
       masterWeights: plan.masterWeights,
     },
     lossScale,
+    lossScaleOrigin: scale.origin,
+    ...(scale.reason !== undefined ? { lossScaleReason: scale.reason } : {}),
     seeds,
     steps,
     microBatches: { run: setup.microBatches, wanted },

@@ -4,7 +4,7 @@
  */
 import type { FormatName } from "../formats/names.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
-import type { NetworkSpec } from "../spec/types.js";
+import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
 
 /** Factors by which sizes are divided before simulating (1 = unchanged). */
 export interface ShrinkFactors {
@@ -32,8 +32,14 @@ export interface SimulateOptions {
   shrink?: Partial<ShrinkFactors>;
   /** the plan to store tensors in: a name from the spec's plans, or the spec's `precision` when absent */
   plan?: string;
-  /** static loss scale (default: the plan's, else 1) */
+  /** static loss scale (default: the plan's, else what `defaultLossScale` answers, else 1) */
   lossScale?: number;
+  /**
+   * the loss scale to run at when neither `lossScale` nor the plan gives one, asked of the network as simulated (shrunk
+   * when asked): the CLI passes one built on `check`, so the simulation runs at the scale the check judges that
+   * network's gradients at. Without it, 1. Kept an option so that this module stays free of check and scale.
+   */
+  defaultLossScale?: DefaultLossScale;
   /** round stored tensors to the plan's formats (default true); false gives a pure binary64 reference run */
   round?: boolean;
   /** largest memory the simulation may need, in bytes (default 4 GiB); larger runs are refused with a suggestion */
@@ -41,6 +47,26 @@ export interface SimulateOptions {
   /** micro-batches run per step at most (accumulation steps × workers); the rest is rescaled (default 8) */
   microBatches?: number;
 }
+
+/**
+ * Where a simulation's loss scale came from (the origins of check's applied loss scale): `option` the caller's
+ * `lossScale`, `plan` the plan's, `recommended` a scale `defaultLossScale` recommended, `none` 1 (no scale given,
+ * recommended or needed).
+ */
+export type SimulationLossScaleOrigin = "option" | "plan" | "recommended" | "none";
+
+/** What a {@link DefaultLossScale} answers: the scale, and why in a clause (e.g. "recommended by check"). */
+export interface DefaultLossScaleAnswer {
+  value: number;
+  origin: "recommended" | "none";
+  reason: string;
+}
+
+/**
+ * Asked for the loss scale when neither the options nor the plan give one: `simulated` is the network as it will run
+ * (shrunk when `shrunk`), `plan` the plan it stores tensors in.
+ */
+export type DefaultLossScale = (simulated: NetworkSpec, context: { plan: PrecisionPlan; shrunk: boolean }) => DefaultLossScaleAnswer;
 
 /** What storing a tensor in its planned format did, as fractions of its elements. */
 export interface FormatCounts {
@@ -115,6 +141,10 @@ export interface SimulationResult {
   planName: string;
   formats: Record<PlanSlot, FormatName> & { accumulate: FormatName; masterWeights: FormatName | "none" };
   lossScale: number;
+  /** where `lossScale` came from */
+  lossScaleOrigin: SimulationLossScaleOrigin;
+  /** why, in a clause, when `defaultLossScale` chose it */
+  lossScaleReason?: string;
   seeds: number[];
   steps: number;
   /** micro-batches run per step, and how many the spec's accumulation steps × workers call for */

@@ -104,6 +104,28 @@ describe("simulation engine", () => {
     }
   });
 
+  it("asks defaultLossScale for the scale only when neither the options nor the plan give one, about the network as run", () => {
+    const s = spec(MLP);
+    const asked: { batch: number; plan: string; shrunk: boolean }[] = [];
+    const defaultLossScale = (simulated: NetworkSpec, context: { plan: { name: string }; shrunk: boolean }) => {
+      asked.push({ batch: simulated.training.batch, plan: context.plan.name, shrunk: context.shrunk });
+      return { value: 64, origin: "recommended" as const, reason: "a test's pick" };
+    };
+    const chosen = runSimulation(s, { round: false, shrink: { batch: 4 }, defaultLossScale });
+    expect(asked).toEqual([{ batch: 4, plan: "half", shrunk: true }]);
+    expect([chosen.lossScale, chosen.lossScaleOrigin, chosen.lossScaleReason]).toEqual([64, "recommended", "a test's pick"]);
+    // the loss gradient is (p − onehot)/batch times the scale: a power of two scales it exactly (IEEE 754-2019 §4.3)
+    const unscaled = runSimulation(s, { round: false, shrink: { batch: 4 } });
+    expect([unscaled.lossScale, unscaled.lossScaleOrigin, unscaled.lossScaleReason]).toEqual([1, "none", undefined]);
+    const id = "classes/activation-gradient:target-class";
+    expect(chosen.tensors.find((t) => t.id === id)!.median.rms / unscaled.tensors.find((t) => t.id === id)!.median.rms).toBe(64);
+    const given = runSimulation(s, { round: false, lossScale: 8, defaultLossScale });
+    expect([given.lossScale, given.lossScaleOrigin]).toEqual([8, "option"]);
+    const planned = runSimulation(spec(MLP.replace("accumulate: binary32", "accumulate: binary32\n  loss-scale: 512")), { round: false, defaultLossScale });
+    expect([planned.lossScale, planned.lossScaleOrigin]).toEqual([512, "plan"]);
+    expect(asked).toHaveLength(1);
+  });
+
   it("counts overflow in binary16 when a large loss scale pushes gradients past 65504", () => {
     const s = spec(MLP);
     const r = runSimulation(s, { lossScale: 2 ** 30 });
