@@ -10,11 +10,16 @@ import {
   zeroAfterStorage,
   type Comparison,
   type ComparisonRow,
+  type DefaultLossScale,
+  type DefaultLossScaleAnswer,
   type MeasuredTensor,
   type ShrinkFactors,
   type SimulationReport,
   type SimulationResult,
 } from "../simulate/index.js";
+import { check, CheckInputError, unscaledReason } from "../check.js";
+import { scaleWords } from "../risk/words.js";
+import type { NetworkSpec } from "../spec/types.js";
 import { parseLossScale } from "./loss-scale.js";
 import { DEFAULT_THRESHOLDS } from "../risk/catalogue.js";
 import { writeFileAtomic } from "./shared.js";
@@ -52,6 +57,7 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
     memoryLimit: positive("--memory", flags.memory) * 2 ** 30,
     microBatches: wholeNumber("--micro-batches", flags.microBatches, 1, 1000),
     predict,
+    defaultLossScale: checkedLossScale(loaded.spec),
     ...(flags.shrink !== undefined ? { shrink: parseShrink(flags.shrink) } : {}),
     ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
     ...(flags.lossScale !== undefined ? { lossScale: parseLossScale(flags.lossScale) as number } : {}),
@@ -69,6 +75,49 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
   }
   process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
   raiseExitCode(simulationExitCode(report.result));
+}
+
+/**
+ * simulate's loss scale when neither --loss-scale nor the plan gives one: the scale `check` judges the gradients of
+ * the network as simulated at (its window's pick when the gradients need a scale, else 1), so the second opinion
+ * runs under the conditions of the verdict it checks. It is the check of the simulated network, shrunk when asked,
+ * not of the full-size spec: the measurements are compared with the prediction for the shrunk network at the scale
+ * run, and shrinking moves the gradients and so the window (the loss is a mean over a smaller batch; at
+ * `--shrink width=8` deep-relu-glorot's window is 2^19..2^19 against 2^17..2^19 at full size: the full-size pick 2^18
+ * lies below the shrunk network's window, where its prediction has gradients flushing beyond the tolerance). The
+ * full-size pick is named beside it when it differs. Like the simulation, this check uses no measured data of the spec.
+ */
+export function checkedLossScale(original: NetworkSpec): DefaultLossScale {
+  return (simulated, { plan, shrunk }): DefaultLossScaleAnswer => {
+    const applied = judgedScale(simulated, plan.name);
+    if (applied.origin === "recommended") {
+      if (!shrunk) return { value: applied.value, origin: "recommended", reason: "recommended by check" };
+      const full = fullSizeScale(original, plan.name);
+      const beside = full === undefined || full.value === applied.value ? "" : full.origin === "recommended" ? `; ${scaleWords(full.value)} for the full-size one` : "; no static scale for the full-size one";
+      return { value: applied.value, origin: "recommended", reason: `recommended by check for the shrunk network${beside}` };
+    }
+    const unscaled = unscaledReason(plan);
+    if (unscaled !== null) return { value: 1, origin: "none", reason: `none needed: ${unscaled.sentence}` };
+    // a plan whose gradients need a scale has a window; origin "none" then means it is empty (src/risk/judge.ts)
+    return { value: 1, origin: "none", reason: `check finds no static scale that fits the ${plan.gradients} gradients${shrunk ? " of the shrunk network" : ""}` };
+  };
+}
+
+// the scale check judges the plan's gradients at: that of the format holding them (every format of a plan judged as
+// itself shares the plan's gradients, so they share one scale)
+function judgedScale(spec: NetworkSpec, plan: string): { value: number; origin: string } {
+  const result = check(spec, { plan });
+  return result.formats.find((f) => f.holds.includes("gradients"))?.lossScale ?? result.lossScale;
+}
+
+function fullSizeScale(spec: NetworkSpec, plan: string): { value: number; origin: string } | undefined {
+  try {
+    return judgedScale(spec, plan);
+  } catch (error) {
+    // the simulation runs the shrunk network only; a full-size network that does not build just goes unnamed
+    if (error instanceof CheckInputError) return undefined;
+    throw error;
+  }
 }
 
 function wholeNumber(flag: string, text: string, min: number, max: number): number {
@@ -139,7 +188,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   lines.push(`headroom simulate: ${result.specName}, plan ${result.planName}`);
   lines.push(
     `  stored: activations ${f.activations}, weights ${f.weights}, gradients ${f.gradients}, optimizer states ${f.optimizerStates}, ` +
-      `master weights ${f.masterWeights}; accumulate ${f.accumulate}; loss scale ${result.lossScale}` +
+      `master weights ${f.masterWeights}; accumulate ${f.accumulate}; ${lossScaleWords(result)}` +
       (result.rounded ? "" : " (no rounding: binary64 throughout; counts say what storing would do)"),
   );
   const seeds = result.seeds.length === 1 ? `seed ${result.seeds[0]}` : `seeds ${result.seeds[0]}–${result.seeds[result.seeds.length - 1]} (median of ${result.seeds.length} draws)`;
@@ -207,6 +256,24 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   return lines.join("\n") + "\n";
 }
 
+/**
+ * The loss scale and where it came from, e.g. "loss scale 2^18 (recommended by check; --loss-scale to change)".
+ * The number as check words it (2^k), so the two outputs can be read side by side.
+ */
+export function lossScaleWords(result: SimulationResult): string {
+  const value = `loss scale ${scaleWords(result.lossScale)}`;
+  switch (result.lossScaleOrigin) {
+    case "option":
+      return `${value} (given by --loss-scale)`;
+    case "plan":
+      return `${value} (the plan's)`;
+    case "recommended":
+    case "none":
+      // a default chose it (its reason says why), or nothing did
+      return result.lossScaleReason === undefined ? `${value} (none given)` : `${value} (${result.lossScaleReason}; --loss-scale to change)`;
+  }
+}
+
 function disagreementLines(comparison: Comparison): string[] {
   const { tolerance, disagreements, rows } = comparison;
   const out = [
@@ -256,6 +323,8 @@ export function renderSimulationJson(report: SimulationReport): string {
     plan: result.planName,
     formats: result.formats,
     lossScale: result.lossScale,
+    lossScaleOrigin: result.lossScaleOrigin,
+    ...(result.lossScaleReason !== undefined ? { lossScaleReason: result.lossScaleReason } : {}),
     seeds: result.seeds,
     steps: result.steps,
     rounded: result.rounded,
@@ -391,7 +460,7 @@ body { font: 13px system-ui, sans-serif; margin: 16px; color: #222; }
 .disagrees .label { fill: #b00; font-weight: bold; }
 </style></head><body>
 <h1>${escapeHtml(`${result.specName}: measured against predicted magnitudes`)}</h1>
-<p>Plan ${escapeHtml(result.planName)}, loss scale ${escapeHtml(String(result.lossScale))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
+<p>Plan ${escapeHtml(result.planName)}, ${escapeHtml(lossScaleWords(result))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
 Grey: predicted 1%–99% of element magnitudes (median draw); blue: measured 1%–99% (median over draws); black and dashed blue marks: predicted and measured rms;
 red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.</p>
 ${shrunk}

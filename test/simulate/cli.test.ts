@@ -2,7 +2,10 @@ import { mkdtempSync, readFileSync, writeFileSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
+import { check } from "../../src/check.js";
 import { parseShrink } from "../../src/cli/simulate.js";
+import { parseSpec } from "../../src/spec/index.js";
+import { shrinkSpec } from "../../src/simulate/index.js";
 import { runCli } from "../helpers/run.js";
 
 const dir = mkdtempSync(join(tmpdir(), "headroom-simulate-"));
@@ -112,6 +115,116 @@ describe("headroom simulate (the built binary)", () => {
     const broken = runCli(["simulate", specFile("broken.yaml", SMALL.replace("width: 32", "width: -3"))]);
     expect(broken.status).toBe(2);
     expect(broken.stderr).toMatch(/broken\.yaml:\d+:\d+/);
+  });
+});
+
+// Forward healthy (He, ReLU), backward tiny: the class scores' weights (std 1e-6) shrink every gradient below them by
+// about 2^-20, under binary16's smallest normal 2^-14 and near its smallest subnormal 2^-24 (IEEE 754-2019 Table 3.5),
+// so unscaled they flush. No loss scale in the main plan; one plan gives its own, one holds gradients in bfloat16.
+const FADING = `name: fading
+input: { features: 32, scale: 1.0 }
+training:
+  batch: 16
+  loss: { kind: cross-entropy, classes: 4 }
+  optimizer: { kind: adam, learning-rate: { peak: 1.0e-3, end: 1.0e-3 } }
+precision:
+  name: half
+  activations: binary16
+  weights: binary16
+  gradients: binary16
+  optimizer-states: binary32
+  master-weights: binary32
+  accumulate: binary32
+plans:
+  - { name: brain, activations: bfloat16, weights: bfloat16, gradients: bfloat16, optimizer-states: binary32, master-weights: binary32 }
+  - { name: scaled, activations: binary16, weights: binary16, gradients: binary16, optimizer-states: binary32, master-weights: binary32, loss-scale: 256 }
+layers:
+  - { type: dense, width: 32, init: he-normal }
+  - relu
+  - { type: dense, width: 32, init: he-normal }
+  - relu
+  - { type: dense, width: 32, init: he-normal }
+  - relu
+  - { type: dense, name: scores, width: 4, init: { kind: normal, std: 1.0e-6 } }
+`;
+
+interface SimulationJson {
+  lossScale: number;
+  lossScaleOrigin: string;
+  lossScaleReason?: string;
+  tensors: { id: string; slot: string; measured: { rms: number; counts: { flushed: number } } }[];
+}
+
+function simulateJson(args: readonly string[]): SimulationJson {
+  const run = runCli(["simulate", ...args, "--json"]);
+  expect(run.stderr).toBe("");
+  return JSON.parse(run.stdout) as SimulationJson;
+}
+
+// the share check calls at risk for flushing (src/risk/catalogue.ts DEFAULT_THRESHOLDS, 1%)
+const flushedGradients = (out: SimulationJson): string[] => out.tensors.filter((t) => t.slot === "gradients" && t.measured.counts.flushed >= 0.01).map((t) => t.id);
+
+describe("the loss scale simulate runs at", () => {
+  const file = specFile("fading.yaml", FADING);
+
+  it("with no scale in the plan, runs at the scale check judges the gradients at, and says so", () => {
+    // the second opinion must run under the verdict's conditions: `headroom check --json`'s own answer is the reference
+    const judged = (JSON.parse(runCli(["check", file, "--json"]).stdout) as { lossScale: { value: number; origin: string } }).lossScale;
+    expect(judged.origin).toBe("recommended");
+    const k = Math.log2(judged.value);
+    expect(Number.isInteger(k) && k > 0).toBe(true);
+    const out = simulateJson([file]);
+    expect(out.lossScale).toBe(judged.value);
+    expect(out.lossScaleOrigin).toBe("recommended");
+    expect(out.lossScaleReason).toBe("recommended by check");
+    const text = runCli(["simulate", file]).stdout;
+    expect(text).toContain(`loss scale 2^${k} (recommended by check; --loss-scale to change)`);
+    // the gradients really ran scaled: the loss gradient is measured before storage in binary64, where multiplying
+    // by a power of two is exact (IEEE 754-2019 §4.3, no overflow or underflow here), so its rms moves by exactly 2^k
+    const unscaled = simulateJson([file, "--loss-scale", "1"]);
+    const seed = (o: SimulationJson) => o.tensors.find((t) => t.id === "scores/activation-gradient:target-class")!.measured.rms;
+    expect(seed(out) / seed(unscaled)).toBe(judged.value);
+    // and it matters: unscaled, gradients flush beyond check's at-risk share; at check's scale none does
+    expect(flushedGradients(unscaled).length).toBeGreaterThan(0);
+    expect(flushedGradients(out)).toEqual([]);
+  });
+
+  it("asks check about the network as simulated: the shrunk one, naming the full-size pick beside it", () => {
+    const parsed = parseSpec(FADING, file);
+    if (!parsed.ok) throw new Error("fixture does not parse");
+    // batch ÷8 makes the mean loss's gradient per sample 8× larger: the gradients, and with them the window, move
+    const shrunk = check(shrinkSpec(parsed.spec, { batch: 8 }).spec).lossScale;
+    const full = check(parsed.spec).lossScale;
+    expect(shrunk.origin).toBe("recommended");
+    expect(shrunk.value).not.toBe(full.value);
+    const out = simulateJson([file, "--shrink", "batch=8"]);
+    expect(out.lossScale).toBe(shrunk.value);
+    expect(out.lossScaleOrigin).toBe("recommended");
+    expect(out.lossScaleReason).toBe(`recommended by check for the shrunk network; 2^${Math.log2(full.value)} for the full-size one`);
+  });
+
+  it("keeps the plan's own scale, and --loss-scale over both", () => {
+    const planned = simulateJson([file, "--plan", "scaled"]);
+    expect([planned.lossScale, planned.lossScaleOrigin]).toEqual([256, "plan"]);
+    expect(runCli(["simulate", file, "--plan", "scaled"]).stdout).toContain("loss scale 2^8 (the plan's)");
+    const given = simulateJson([file, "--loss-scale", "4"]);
+    expect([given.lossScale, given.lossScaleOrigin]).toEqual([4, "option"]);
+    expect(simulateJson([file, "--plan", "scaled", "--loss-scale", "4"]).lossScale).toBe(4);
+    expect(runCli(["simulate", file, "--loss-scale", "4"]).stdout).toContain("loss scale 2^2 (given by --loss-scale)");
+  });
+
+  it("leaves bfloat16 gradients unscaled, as check does (binary32's exponent range: Kalamkar et al. 2019, from memory)", () => {
+    const judged = (JSON.parse(runCli(["check", file, "--plan", "brain", "--json"]).stdout) as { lossScale: { value: number; origin: string } }).lossScale;
+    expect(judged).toEqual({ value: 1, origin: "none" });
+    const out = simulateJson([file, "--plan", "brain"]);
+    expect([out.lossScale, out.lossScaleOrigin]).toEqual([1, "none"]);
+    expect(out.lossScaleReason).toBe("none needed: gradients are held in bfloat16, which has binary32's exponent range");
+  });
+
+  it("names the scale and its origin on the page (--html)", () => {
+    const page = join(dir, "fading.html");
+    expect(runCli(["simulate", file, "--html", page]).status).toBe(0);
+    expect(readFileSync(page, "utf8")).toMatch(/loss scale 2\^\d+ \(recommended by check; --loss-scale to change\)/);
   });
 });
 

@@ -13,7 +13,10 @@ export const register: RegisterCommand = (program) => {
     .option("--draws <n>", "independent draws of weights and data; the median is reported", "1")
     .option("--shrink <factors>", "shrink for speed: one factor for widths, batch and positions (e.g. 4), or width=4,batch=8,positions=2,classes=2,image=2")
     .addOption(planOption("store tensors in"))
-    .option("--loss-scale <scale>", "static loss scale, a power of two (default: the plan's, else 1)")
+    .option(
+      "--loss-scale <scale>",
+      "static loss scale, a power of two (default: the plan's, else the scale check judges the simulated network's gradients at, else 1)",
+    )
     .option("--no-rounding", "keep every tensor in binary64 (counts still say what storing would do)")
     .option("--memory <GiB>", "refuse runs that would need more memory than this", "4")
     .option("--micro-batches <n>", "micro-batches (accumulation steps × workers) run per step at most", "8")
