@@ -49,7 +49,7 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
   const optimizer = result.optimizer;
   out += "\n" + style.role("strong", "Optimizer") + ` ${optimizer.kind}: ${verdictText(optimizer.verdict, style)}\n`;
   out += wrap(
-    `updates are added to ${optimizer.weightFormat === optimizer.updateFormat && result.plan.masterWeights === "none" ? `the stored ${optimizer.updateFormat} weights` : `a master copy in ${optimizer.updateFormat}`}${optimizer.epsilon ? `; epsilon ${optimizer.epsilon.value} is held as ${formatValue(optimizer.epsilon.stored)} in ${optimizer.stateFormat}` : ""}.`,
+    `updates are added to ${optimizer.weightFormat === optimizer.updateFormat && result.plan.masterWeights === "none" ? `the stored ${optimizer.updateFormat} weights` : `a master copy in ${optimizer.updateFormat}`}${optimizer.epsilon ? `; epsilon ${formatValue(optimizer.epsilon.value)} is held as ${formatValue(optimizer.epsilon.stored)} in ${optimizer.stateFormat}` : ""}.`,
     width,
     "  ",
     "  ",

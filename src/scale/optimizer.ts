@@ -60,7 +60,7 @@ export interface WeightOptimizerCheck {
   weightRms: number;
   gradientRms: { start: number; end: number };
   updates: UpdateLoss[];
-  /** AdamW only: share of decoupled weight-decay steps (lr·decay·w) lost, at the end learning rate */
+  /** AdamW only: share of decoupled weight-decay steps (lr·decay·w) lost, at the end learning rate (the peak one when the schedule ends at 0) */
   decayLost: number | null;
   /** share of first-moment (or momentum) elements flushed to zero in the optimizer-state format, first step */
   firstMomentFlushed: number;
@@ -284,7 +284,7 @@ export function checkOptimizer(
   // decoupled decay subtracts lr·λ·w: a fixed fraction of each weight (Loshchilov & Hutter 2019), the same share lost
   // for every weight
   const decayLost =
-    optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(optimizer.learningRate.end * optimizer.weightDecay, updateFormat) : null;
+    optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(decayRate(optimizer).lr * optimizer.weightDecay, updateFormat) : null;
   const pairs = weightPairs(prediction);
   const clip = gradientClip(optimizer, pairs);
   const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip };
@@ -403,8 +403,19 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
   };
 }
 
+/**
+ * The learning rate decay steps are judged at: the end one, the smallest the schedule keeps applying; the peak one
+ * when the schedule ends at 0, where no decay step is taken to lose (it would read as every step lost).
+ */
+function decayRate(optimizer: OptimizerSpec): { at: "end" | "peak"; lr: number } {
+  const { peak, end } = optimizer.learningRate;
+  return end > 0 ? { at: "end", lr: end } : { at: "peak", lr: peak };
+}
+
 /** Share of weights whose decoupled decay step lr·λ·|w| is below half an ulp: independent of |w|'s binade position. */
 function decoupledDecayLost(ratio: number, format: Pick<Format, "precision">): number {
+  // a schedule that ends at learning rate 0 takes no decay step there: nothing to lose
+  if (!(ratio > 0)) return 0;
   // for w = m·2^e with m in [1, 2): lost when ratio·m < 2^-p, i.e. m < 2^-p/ratio; weights spread log-uniformly
   // within a binade (Benford-like, common practice), so the share is log2 of that bound clamped to [0, 1]
   const bound = 2 ** -format.precision / ratio;
@@ -562,12 +573,13 @@ function summarise(
       `${sentenceStart(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${clipped}${uncounted}`,
     );
   }
-  const decayRatio = optimizer.learningRate.end * optimizer.weightDecay;
+  const decayAt = decayRate(optimizer);
+  const decayRatio = decayAt.lr * optimizer.weightDecay;
   const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
   if (decayFinding) {
     const uncounted = raise("at-risk", updateFormat);
     reasons.push(
-      `weight decay steps (learning rate × decay = ${plainNumber(decayRatio)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the end learning rate.${uncounted}`,
+      `weight decay steps (learning rate × decay = ${plainNumber(decayRatio)} of each weight) are lost for ${pct(decay)} of the weights in ${updateFormat.name} at the ${decayAt.at} learning rate.${uncounted}`,
     );
   }
   if (lostUpdate !== null || decayFinding) remedies.push(...updateRemedies(lostUpdate, worst?.weight ?? "", decayFinding ? { ratio: decayRatio, lost: decay } : null));
@@ -594,7 +606,7 @@ function summarise(
       zeros.perStep >= 1
         ? `about ${plainNumber(zeros.perStep)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
-    tell("optimizer-constant", `epsilon ${epsilon.value} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
+    tell("optimizer-constant", `epsilon ${plainNumber(epsilon.value)} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
     const raiseTo = `raise epsilon to at least ${roundedUp(formats.stateSmallest)}`;
     remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }

@@ -249,3 +249,22 @@ describe("the loss-scale line under the plan", () => {
     expect(line).toBe("loss scale: none in the plan; judged with the recommended 2^9 = 512, inside the window 2^1 to 2^16.");
   });
 });
+
+describe("the optimizer line's epsilon", () => {
+  it("writes epsilon 1e-6 as the other numbers are written, not JavaScript's 0.000001", () => {
+    // bfloat16 keeps 8 significant bits: 1e-6 = 1.048576·2^-20 rounds to 134/128·2^-20 = 9.98377e-7 (IEEE-style RNE)
+    const parsed = parseSpec(
+      [
+        "input: { features: 16 }",
+        "training: { batch: 8, loss: { kind: cross-entropy, classes: 4 }, optimizer: { kind: adam, learning-rate: 1.0e-3, epsilon: 1.0e-6 } }",
+        "precision: { activations: bfloat16, optimizer-states: bfloat16 }",
+        "layers: [{ type: dense, width: 4 }]",
+      ].join("\n"),
+      "eps.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const text = renderCheckText(check(parsed.spec), { width: 400 });
+    expect(text).toContain("epsilon 1e-6 is held as 9.98e-7 in bfloat16.");
+    expect(text).not.toContain("0.000001");
+  });
+});

@@ -155,6 +155,21 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
   });
 });
 
+describe("checkOptimizer: decay steps of a schedule that ends at learning rate 0", () => {
+  it("are judged at the peak learning rate, not counted as lost at 0 where no decay step is taken", () => {
+    // AdamW decays by lr·λ (Loshchilov & Hutter 2019): peak 2^-3 × λ 2^-11 = 2^-14 of each weight, below half an ulp
+    // in binary16 (2^-11 of a weight near 1, IEEE 754-2019 p = 11): lost; at lr 0 there is no step at all
+    const toZero: OptimizerSpec = { ...adam(2 ** -3, 2 ** -11), learningRate: { peak: 2 ** -3, end: 0 } };
+    const result = checkOptimizer(toZero, plan("binary16", "none"), prediction());
+    expect(result.reasons).toEqual([
+      "weight decay steps (learning rate × decay = 6.1e-5 of each weight) are lost for 100% of the weights in binary16 at the peak learning rate.",
+    ]);
+    // kept at the peak (2^-3 × 2^-3 = 2^-6, above half an ulp): no decay finding, where 0 used to read as 100% lost
+    const kept: OptimizerSpec = { ...adam(2 ** -3, 2 ** -3), learningRate: { peak: 2 ** -3, end: 0 } };
+    expect(checkOptimizer(kept, plan("binary16", "none"), prediction()).reasons.join(" ")).not.toContain("weight decay");
+  });
+});
+
 describe("checkOptimizer remedies for decay steps, second moments and epsilon", () => {
   it("lost decay steps get remedies with their computed shares", () => {
     // AdamW subtracts lr·λ·w (Loshchilov & Hutter 2019): lr 2^-3 (kept) × λ 2^-11 = 2^-14 of each weight, below
