@@ -210,7 +210,11 @@ function bandSection(model: ReportModel): string {
     `<p>Each bar runs from a low quantile of a tensor's nonzero magnitudes to its predicted largest value, on a scale of ` +
     `powers of two; the tick marks its root mean square. Behind each bar is the range of the format the plan stores ` +
     `that tensor in: solid for normal numbers, hatched for subnormals (fewer significant bits). A bar that leaves its ` +
-    `shading overflows on the right or flushes to zero on the left.</p>`;
+    `shading overflows on the right or flushes to zero on the left.` +
+    (model.tensors.some((t) => t.scaleLog2 !== undefined)
+      ? ` A tensor an 8-bit format holds with a per-tensor scale factor is drawn after that factor, as the format receives it.`
+      : "") +
+    `</p>`;
   out += legendHtml();
   for (const [id, title, list] of [
     ["forward", "Forward pass", forward],

@@ -50,25 +50,37 @@ function tensorLabel(tensor: TensorCheck): string {
 
 function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
   const format = result.plan[tensor.slot];
-  // a profile that is all zeros (a bias at initialisation) has no magnitudes to show
-  const profiles = [tensor.statistics.start, tensor.statistics.end].filter((p) => p.rms > 0);
-  const start = profiles[0] ?? tensor.statistics.start;
-  const end = profiles[1] ?? start;
   const risk = tensor.risks.find((r) => r.format === format);
   const worst = risk ? [...risk.findings].sort((a, b) => (a.severity === b.severity ? 0 : a.severity === "fails" ? -1 : 1))[0] : undefined;
-  return {
+  // an 8-bit conversion with scale factors multiplies the tensor by 2^k first (k per side of the horizon): drawn
+  // unscaled, a tensor the format holds well would sit outside its range and read as flushed or overflowing
+  const sides = [
+    { p: tensor.statistics.start, scale: risk ? 2 ** risk.scaleLog2.start : 1 },
+    { p: tensor.statistics.end, scale: risk ? 2 ** risk.scaleLog2.end : 1 },
+  ];
+  // a profile that is all zeros (a bias at initialisation) has no magnitudes to show
+  const shown = sides.filter((side) => side.p.rms > 0);
+  const first = shown[0] ?? (sides[0] as (typeof sides)[number]);
+  const second = shown[1] ?? first;
+  const start = first.p;
+  const end = second.p;
+  const startScale = first.scale;
+  const endScale = second.scale;
+  const band: ReportTensorBand = {
     id: tensor.id,
     layer: tensor.layer,
     layerIndex: tensor.layerIndex,
     role: tensorLabel(tensor),
     pass: FORWARD_ROLES.has(tensor.role) ? "forward" : "backward",
     format,
-    lowLog2: log2(Math.min(start.low, end.low)),
-    rmsLog2: log2(start.rms),
-    highLog2: log2(Math.max(start.max, end.max)),
+    lowLog2: log2(Math.min(start.low * startScale, end.low * endScale)),
+    rmsLog2: log2(start.rms * startScale),
+    highLog2: log2(Math.max(start.max * startScale, end.max * endScale)),
     verdict: risk?.verdict ?? tensor.verdict,
     note: worst?.sentence ?? "",
   };
+  if (risk && risk.scaleLog2.start !== 0) band.scaleLog2 = risk.scaleLog2.start;
+  return band;
 }
 
 /**

@@ -41,6 +41,11 @@ export interface ReportTensorBand {
   verdict: SummaryVerdict;
   /** the worst finding about it, one sentence; empty when it fits */
   note: string;
+  /**
+   * the per-tensor scale factor's exponent an 8-bit conversion with scale factors applies (at the start of training),
+   * present when it is not 0: the band is drawn after it, as the format receives the tensor
+   */
+  scaleLog2?: number;
 }
 
 /** One factor of the ledger. */

@@ -116,6 +116,41 @@ describe("the formats table of a report judging formats in place of the plan's",
   });
 });
 
+describe("the bands of 8-bit tensors with per-tensor scale factors", () => {
+  test("are drawn after the scale factor, as the format receives them, and the text says so", async () => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { parseSpec } = await import("../../src/spec/index.js");
+    const parsed = parseSpec(
+      [
+        "input: { features: 256 }",
+        "training: { batch: 64, loss: { kind: cross-entropy, classes: 10 } }",
+        "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: tensor }",
+        "layers: [{ type: dense, width: 256, init: he-normal }, relu, { type: dense, width: 10 }]",
+      ].join("\n"),
+      "scaled.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const result = check(parsed.spec);
+    const model = reportModel(result, { version: "test" });
+    const tensor = result.tensors.find((t) => t.id === "dense-0/activation-gradient")!;
+    const risk = tensor.risks.find((r) => r.format === "e5m2")!;
+    expect(risk.scaleLog2.start).toBeGreaterThan(10);
+    const band = model.tensors.find((t) => t.id === tensor.id)!;
+    expect(band.scaleLog2).toBe(risk.scaleLog2.start);
+    expect(band.rmsLog2).toBeCloseTo(Math.log2(tensor.statistics.start.rms) + risk.scaleLog2.start, 12);
+    // e5m2's largest finite value 57344 = 1.75·2^15 (OCP 8-bit spec, Table 1): the scaled max sits below it
+    expect(band.highLog2).toBeLessThan(Math.log2(57344));
+    expect(renderHtmlReport(model)).toContain("drawn after that factor, as the format receives it.");
+    // without scale factors nothing moves and nothing is said
+    const plain = parseSpec("input: { features: 256 }\ntraining: { batch: 64, loss: { kind: cross-entropy, classes: 10 } }\nprecision: { activations: binary16 }\nlayers: [{ type: dense, width: 10 }]\n", "plain.yaml");
+    if (!plain.ok) throw new Error("does not parse");
+    const plainModel = reportModel(check(plain.spec), { version: "test" });
+    expect(plainModel.tensors.every((t) => t.scaleLog2 === undefined)).toBe(true);
+    expect(renderHtmlReport(plainModel)).not.toContain("drawn after that factor");
+  });
+});
+
 describe("the verdict's reasons of a report", () => {
   test("open with a capital, the optimizer's too", async () => {
     const { check } = await import("../../src/check.js");
