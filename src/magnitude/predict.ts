@@ -561,7 +561,8 @@ function assumptions(spec: NetworkSpec): string[] {
     const effect = pRight > 1 / t.loss.classes ? "which shrinks the output gradient" : `no more than the untrained 1/${t.loss.classes}, so the output gradient does not shrink`;
     list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${String(Number(pRight.toPrecision(3)))}, ${effect} (derivation in src/magnitude/loss.ts).`);
   }
-  else list.push("At the end of the horizon the output residual's rms is √(final loss), which shrinks the output gradient by √(final loss / initial loss).");
+  // the residual's mean square goes from the initial loss to the final one: a larger final loss grows the gradient
+  else list.push("At the end of the horizon the output residual's rms is √(final loss), which scales the output gradient by √(final loss / initial loss), a shrink when the final loss is the smaller.");
   if (t.horizon.weightGrowth !== 1) list.push(`Every weight's rms is multiplied by ${t.horizon.weightGrowth} at the end of the horizon, and the forward pass is recomputed with it.`);
   return list;
 }

@@ -320,6 +320,17 @@ describe("the assumptions listed", () => {
     expect(lookup.assumptions.some((a) => token.test(a))).toBe(true);
   });
 
+  test("say a squared error's output gradient is scaled by √(final / initial loss), which is a growth for a larger final loss", () => {
+    // target scale 1: the initial mean square of y − t is about 1 + E[y²] ≈ 2; a final loss of 8 is larger, so the
+    // gradient 2(y − t) grows by about √(8/2) = 2 (the residual's rms is √(final loss))
+    const p = run(makeSpec([dense("out", 4, lecun)], { loss: mse(1), training: { horizon: { steps: 100, weightGrowth: 1, finalLoss: 8 } } }));
+    const gradient = p.tensors.find((t) => t.id === "out/activation-gradient")!;
+    expect(gradient.end.rms).toBeGreaterThan(gradient.start.rms);
+    expect(p.assumptions).toContain(
+      "At the end of the horizon the output residual's rms is √(final loss), which scales the output gradient by √(final loss / initial loss), a shrink when the final loss is the smaller.",
+    );
+  });
+
   test("say the output gradient shrinks only when the final loss is below ln(classes)", () => {
     // e^(−0.5) = 0.607 > 1/10 shrinks 1 − p; e^(−3) = 0.0498 < 1/10 (3 > ln 10 = 2.303) is no surer than an untrained
     // classifier's 1/10 (uniform predictions), so 1 − p does not shrink
