@@ -148,7 +148,7 @@ class Phase {
   private sumDetail(): string {
     const training = this.spec.training;
     const W = training.workers;
-    this.#sumDetail ??= `: ${training.accumulationSteps} accumulation step(s) × ${W} worker(s) summed${training.workerGradients === "average" ? `, then divided by ${W}` : ""}`;
+    this.#sumDetail ??= `: ${counted(training.accumulationSteps, "accumulation step")} × ${counted(W, "worker")} summed${training.workerGradients === "average" ? `, then divided by ${W}` : ""}`;
     return this.#sumDetail;
   }
 
@@ -157,7 +157,7 @@ class Phase {
   /** The ledger rule of combining micro-batch and worker gradients (the same for every weight of a spec: made once). */
   private combineRule(): string {
     const training = this.spec.training;
-    this.#combineRule ??= `${training.accumulationSteps} accumulation step(s) × ${training.workers} worker(s), gradients ${training.workerGradients}d`;
+    this.#combineRule ??= `${counted(training.accumulationSteps, "accumulation step")} × ${counted(training.workers, "worker")}, gradients ${training.workerGradients}d`;
     return this.#combineRule;
   }
 
@@ -660,4 +660,9 @@ function lossValueSource(loss: NetworkSpec["training"]["loss"]): string {
   return loss.kind === "cross-entropy"
     ? "cross-entropy −ln p_y: the mean log-sum-exp of the logits at the start (definition; Gaussian softmax moments by Laplace-transform quadrature, Cressie et al. 1981)"
     : "mean squared error: the mean square of y − t per term (definition), summed over the terms with reduction sum";
+}
+
+/** "1 worker", "16 workers". */
+function counted(n: number, noun: string): string {
+  return `${n} ${noun}${n === 1 ? "" : "s"}`;
 }

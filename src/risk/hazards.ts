@@ -350,12 +350,12 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
     }
     case GRADIENT_SUM_OVERFLOW:
       return (
-        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${site.layer} (rms ${plainNumber(draft.extra)} after the loss ` +
+        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${gradientOf(site)} (rms ${plainNumber(draft.extra)} after the loss ` +
         `scale) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
     case GRADIENT_SUM_FLUSH:
       return (
-        `If each worker divides the gradients of ${site.layer} by ${context.workers} before the sum, ` +
+        `If each worker divides the gradients of ${gradientOf(site)} by ${context.workers} before the sum, ` +
         `${sharePercent(value)} more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`
       );
     case EPSILON_KEPT:
@@ -376,6 +376,13 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `${plainNumber(draft.criticalLevel as number)}: ${sharePercent(value)} of its elements${side} (${verdictWord(verdict)}).`
       );
   }
+}
+
+// A prediction's gradient-sum site names its weight gradient first in its detail ("dense-1/weight-gradient:bias: ..."):
+// a layer's weight and bias have a site each, which the layer's name alone would not tell apart
+function gradientOf(site: HazardSite): string {
+  const id = site.detail.split(": ")[0] ?? "";
+  return id.includes("/") ? id : site.layer;
 }
 
 // A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), laid out as magnitude/profile.ts's

@@ -311,6 +311,14 @@ describe("ledger wording of large numbers", () => {
   });
 });
 
+describe("the gradient-sum site's words", () => {
+  test("count steps and workers in the singular or plural they need, not step(s) and worker(s)", () => {
+    const p = run(makeSpec([dense("out", 4, lecun)], { loss: crossEntropy(4), training: { workers: 2, accumulationSteps: 1, workerGradients: "average" } }));
+    const site = p.hazards.find((h) => h.kind === "gradient-sum" && h.detail.startsWith("out/weight-gradient:"));
+    expect(site?.detail).toBe("out/weight-gradient: 1 accumulation step × 2 workers summed, then divided by 2");
+  });
+});
+
 describe("the assumptions listed", () => {
   test("name the token-use assumption only for a network that looks up tokens", () => {
     const token = /^Token ids are taken as used uniformly/;

@@ -167,6 +167,17 @@ describe("gradient sums across workers", () => {
     const flush = check.findings.find((f) => f.kind === "gradient-sum-flush");
     expect(flush?.severity).toBe("at-risk");
   });
+
+  it("names the weight gradient its detail gives, so a layer's weight and bias sites read apart", () => {
+    const sum = (id: string) =>
+      site({ kind: "gradient-sum", layer: "words", detail: `${id}: 4 accumulation steps × 16 workers summed`, terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
+    const weight = evaluateHazard(sum("words/weight-gradient"), context({ workers: 16 })).evaluations[0]?.sentence;
+    const bias = evaluateHazard(sum("words/weight-gradient:bias"), context({ workers: 16 })).evaluations[0]?.sentence;
+    expect(weight).toMatch(/^The sum of 64 gradient contributions of words\/weight-gradient \(rms/);
+    expect(bias).toMatch(/^The sum of 64 gradient contributions of words\/weight-gradient:bias \(rms/);
+    // a site whose detail names no tensor keeps its layer
+    expect(evaluateHazard(site({ kind: "gradient-sum", layer: "words", terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) }), context({ workers: 16 })).evaluations[0]?.sentence).toMatch(/contributions of words \(rms/);
+  });
 });
 
 describe("optimizer constants", () => {
