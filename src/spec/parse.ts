@@ -90,6 +90,10 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
   try {
     data = doc.toJS({ maxAliasCount: MAX_ALIAS_COUNT });
   } catch (error) {
+    // the yaml library finds an alias without an anchor and a merge of a non-map only while building values, and
+    // names no position: find them in the document, each where it is written
+    const structural = aliasAndMergeIssues(doc, counter, source);
+    if (structural.length > 0) return { ok: false, issues: structural };
     if (error instanceof ReferenceError || error instanceof RangeError) {
       return wholeFile(source, `refused: the document expands aliases too many times (more than ${MAX_ALIAS_COUNT}); reuse layers with blocks instead`);
     }
@@ -109,6 +113,46 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
     };
   }
   return validateSpec(data as Record<string, unknown>, source, () => parsed);
+}
+
+/** Every node of the document with its key path (aliases not followed). */
+function* nodesOf(node: unknown, path: SpecPath = [], mergeSource = false): Generator<{ node: unknown; path: SpecPath; mergeSource: boolean }> {
+  yield { node, path, mergeSource };
+  const yaml = yamlLib();
+  if (yaml.isMap(node)) {
+    for (const pair of node.items) {
+      const key = yaml.isScalar(pair.key) ? pair.key : undefined;
+      // with merge keys on, `<<` has a symbol value; its source text stays "<<"
+      if (key !== undefined && (key as { source?: unknown }).source === "<<" && typeof key.value !== "string") {
+        const sources = yaml.isSeq(pair.value) ? pair.value.items.map((item, index) => ({ item, at: [...path, "<<", index] })) : [{ item: pair.value, at: [...path, "<<"] }];
+        for (const { item, at } of sources) yield* nodesOf(item, at, true);
+        continue;
+      }
+      yield* nodesOf(pair.value, [...path, key === undefined ? String(pair.key) : String(key.value)]);
+    }
+  } else if (yaml.isSeq(node)) {
+    for (let index = 0; index < node.items.length; index++) yield* nodesOf(node.items[index], [...path, index]);
+  }
+}
+
+/** Aliases that name no anchor written before them, and merge keys (`<<`) given something else than mappings. */
+function aliasAndMergeIssues(doc: Document, counter: LineCounter, source: string): SpecIssue[] {
+  const yaml = yamlLib();
+  const issues: SpecIssue[] = [];
+  for (const { node, path, mergeSource } of nodesOf(doc.contents)) {
+    const range = (node as { range?: [number, number, number] } | null)?.range;
+    const at = counter.linePos(range?.[0] ?? 0);
+    const issue = (message: string): void => {
+      issues.push({ file: source, line: at.line, column: at.col, path: formatSpecPath(path), message });
+    };
+    const target = yaml.isAlias(node) ? node.resolve(doc) : node;
+    if (yaml.isAlias(node) && target === undefined) {
+      issue(`yaml: the alias *${node.source} names no anchor: write &${node.source} on a value before it`);
+    } else if (mergeSource && !yaml.isMap(target)) {
+      issue("yaml: merge sources must be maps or map aliases: `<<` takes a mapping, an alias of one, or a list of those");
+    }
+  }
+  return issues.sort(byPosition);
 }
 
 /** Validate and normalize the plain data of a spec; `parsed` gives the positioned document when an issue needs it. */
