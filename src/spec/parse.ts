@@ -74,16 +74,19 @@ function parseWithPositions(text: string): Parsed {
 function parseYaml(text: string, source: string, parsed = parseWithPositions(text)): SpecResult {
   const { doc, counter } = parsed;
   if (doc.errors.length > 0) {
-    const issues = doc.errors.map((error) => ({
-      file: source,
-      line: error.linePos?.[0]?.line ?? 0,
-      column: error.linePos?.[0]?.col ?? 0,
-      path: "",
-      message:
-        error.code === "MULTIPLE_DOCS"
-          ? "yaml: a spec is one document, and this file has more than one (a second '---' line)"
-          : `yaml: ${yamlMessage(error.message)}`,
-    }));
+    const issues = doc.errors.map((error) => {
+      const issue = {
+        file: source,
+        line: error.linePos?.[0]?.line ?? 0,
+        column: error.linePos?.[0]?.col ?? 0,
+        path: "",
+        message:
+          error.code === "MULTIPLE_DOCS"
+            ? "yaml: a spec is one document, and this file has more than one (a second '---' line)"
+            : `yaml: ${yamlMessage(error.message)}`,
+      };
+      return error.code === "DUPLICATE_KEY" ? { ...issue, ...duplicateKey(doc, counter, error.pos[0]) } : issue;
+    });
     return { ok: false, issues: issues.sort(byPosition) };
   }
   let data: unknown;
@@ -133,6 +136,25 @@ function* nodesOf(node: unknown, path: SpecPath = [], mergeSource = false): Gene
   } else if (yaml.isSeq(node)) {
     for (let index = 0; index < node.items.length; index++) yield* nodesOf(node.items[index], [...path, index]);
   }
+}
+
+/** The key path and message of a key written twice in one mapping (YAML 1.2.2 §3.2.1.1: keys are unique), found at `offset`. */
+function duplicateKey(doc: Document, counter: LineCounter, offset: number): { path: string; message: string } | undefined {
+  const yaml = yamlLib();
+  for (const { node, path } of nodesOf(doc.contents)) {
+    if (!yaml.isMap(node)) continue;
+    const index = node.items.findIndex((pair) => (pair.key as { range?: number[] } | null)?.range?.[0] === offset);
+    if (index < 0) continue;
+    const key = node.items[index]!.key;
+    const name = yaml.isScalar(key) ? key.value : undefined;
+    if (typeof name !== "string" && typeof name !== "number" && typeof name !== "boolean") return undefined;
+    const first = node.items.find((pair) => yaml.isScalar(pair.key) && pair.key.value === name)?.key as { range?: number[] } | undefined;
+    const start = first?.range?.[0];
+    const at = start === undefined ? undefined : counter.linePos(start);
+    const where = at ? ` (first at line ${at.line}, column ${at.col})` : "";
+    return { path: formatSpecPath([...path, String(name)]), message: `yaml: the key ${JSON.stringify(String(name))} is written twice in one mapping${where}; keep one` };
+  }
+  return undefined;
 }
 
 /** Aliases that name no anchor written before them, and merge keys (`<<`) given something else than mappings. */
