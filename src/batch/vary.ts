@@ -61,16 +61,36 @@ export function parseKeyPath(key: string): (string | number)[] {
   return path;
 }
 
+/**
+ * The values of an option, split at the commas outside quotes: a YAML quoted scalar may hold a comma
+ * (`name="a,b"`; YAML 1.2.2 §7.3.1-2: `\"` escapes a double quote, `''` is a single quote in single quotes).
+ */
+function splitValues(list: string): string[] {
+  const out: string[] = [];
+  let start = 0;
+  let quote = "";
+  for (let at = 0; at < list.length; at++) {
+    const c = list[at]!;
+    if (quote === '"' && c === "\\") at++;
+    else if (quote === "'" && c === "'" && list[at + 1] === "'") at++;
+    else if (quote !== "" && c === quote) quote = "";
+    else if (quote === "" && (c === '"' || c === "'") && list.slice(start, at).trim() === "") quote = c;
+    else if (quote === "" && c === ",") {
+      out.push(list.slice(start, at));
+      start = at + 1;
+    }
+  }
+  out.push(list.slice(start));
+  return out;
+}
+
 /** Read one `KEY=V1,V2,...` option. */
 export function parseVaryOption(option: string): VaryAxis {
   const equals = option.indexOf("=");
   if (equals < 0) throw new VaryError(`--vary ${option}: expected KEY=VALUE1,VALUE2,... e.g. training.batch=8,16,32`);
   const key = option.slice(0, equals).trim();
   const path = parseKeyPath(key);
-  const texts = option
-    .slice(equals + 1)
-    .split(",")
-    .map((text) => text.trim());
+  const texts = splitValues(option.slice(equals + 1)).map((text) => text.trim());
   const values = texts.map((text): VaryValue => {
     if (text === "") throw new VaryError(`--vary ${key}: an empty value; list values separated by commas`);
     let value: unknown;

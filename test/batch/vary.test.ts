@@ -23,6 +23,13 @@ describe("parseVaryOption", () => {
     expect(axis.values.map((v) => v.value)).toEqual([8, 16, 0.0001, true, "bfloat16", "32"]);
     expect(axis.values.map((v) => v.text)).toEqual(["8", "16", "1e-4", "true", "bfloat16", "'32'"]);
   });
+  test("a quoted value may hold a comma (YAML 1.2.2 §7.3.1-2 quoted scalars: \\\" and '' escape the quote)", () => {
+    const axis = parseVaryOption(`name="tide, north",'it''s, south', "say \\"hi\\", twice",plain`);
+    expect(axis.values.map((v) => v.value)).toEqual(["tide, north", "it's, south", 'say "hi", twice', "plain"]);
+    expect(axis.values.map((v) => v.text)).toEqual(['"tide, north"', "'it''s, south'", '"say \\"hi\\", twice"', "plain"]);
+    // a quote inside a plain value starts no quoted scalar (YAML 1.2.2 §7.3.3)
+    expect(parseVaryOption(`name=it's,x`).values.map((v) => v.value)).toEqual(["it's", "x"]);
+  });
   test("refuses a missing =, empty values, duplicates and non-scalars", () => {
     expect(() => parseVaryOption("training.batch")).toThrow(/expected KEY=VALUE1/);
     expect(() => parseVaryOption("training.batch=8,,16")).toThrow(/empty value/);
