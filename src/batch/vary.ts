@@ -375,8 +375,10 @@ function replaceValue(
   const scalarText = yamlScalarText(value);
   const range = isScalar(node) ? node.range : undefined;
   if (range && range[1] > range[0]) {
-    // keep an anchor (&name) in front of the value: replace the value's own text only
-    return { start: range[0], end: range[1], text: scalarText };
+    // keep an anchor (&name) in front of the value: replace the value's own text only; a block scalar's range
+    // (`|`, `>`) takes in its last line break, which the next key needs
+    const end = range[0] + trimLineEnds(text.slice(range[0], range[1])).length;
+    return { start: range[0], end, text: scalarText };
   }
   // an empty value (`width:`): write after the key's colon
   const keyEnd = isScalar(keyNode) && keyNode.range ? keyNode.range[1] : range?.[0];
@@ -386,13 +388,23 @@ function replaceValue(
   return { start: at, end: at, text: ` ${scalarText}` };
 }
 
+/** Text without the spaces and line breaks at its end. */
+function trimLineEnds(text: string): string {
+  return text.replace(/[ \t\r\n]+$/, "");
+}
+
 function insertPair(map: unknown, text: string, counter: LineCounter, pairText: string): TextEdit {
   if (!isMap(map) || !map.range) throw new VaryError(`cannot add ${pairText} here`);
   if (map.flow) {
-    // `{ a: 1 }` → `{ a: 1, "k": v }`: before the closing brace, on the same line
+    // `{ a: 1 }` → `{ a: 1, "k": v }`: right after the last entry, so a trailing comma or a comment stays valid
+    const last = map.items[map.items.length - 1];
+    const lastEnd = (last?.value as { range?: number[] } | null)?.range?.[1] ?? (last?.key as { range?: number[] } | null)?.range?.[1];
+    if (lastEnd !== undefined) {
+      const at = lastEnd - (text.slice(0, lastEnd).length - trimLineEnds(text.slice(0, lastEnd)).length);
+      return { start: at, end: at, text: `, ${pairText}` };
+    }
     const close = text.lastIndexOf("}", map.range[1] - 1);
-    const inside = text.slice(map.range[0] + 1, close).trim();
-    return { start: close, end: close, text: inside === "" ? ` ${pairText} ` : `, ${pairText} ` };
+    return { start: close, end: close, text: ` ${pairText} ` };
   }
   // a block map: a new line before its first key, at the same indentation
   const first = map.items[0];

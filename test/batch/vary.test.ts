@@ -154,6 +154,19 @@ describe("varyText", () => {
     expect(varied!.originalLine(2)).toBe(1);
     expect(varied!.originalLine(3)).toBe(2);
   });
+  test("replaces a block scalar and keeps the line break the next key needs (YAML 1.2.2 §8.1)", () => {
+    const text = "description: |\n  A tide gauge network\n  for harbours.\nname: >-\n  tide\n  gauge\ntraining: { batch: 1 }\n";
+    const [varied] = vary(text, "description=short", "name=north");
+    expect(parse(varied!.text)).toEqual({ description: "short", name: "north", training: { batch: 1 } });
+    // the two lines each scalar lost are mapped back: training was on line 7
+    expect(varied!.originalLine(3)).toBe(7);
+  });
+  test("adds a key to a flow map with a trailing comma or a comment before its brace (YAML 1.2.2 §7.4.1)", () => {
+    const text = "training: {\n  batch: 32,\n  loss: { kind: cross-entropy, }, # per token\n}\n";
+    const [varied] = vary(text, "training.loss.reduction=sum", "training.workers=3");
+    expect(parse(varied!.text)).toEqual({ training: { batch: 32, loss: { kind: "cross-entropy", reduction: "sum" }, workers: 3 } });
+    expect(varied!.text.split("\n")).toHaveLength(text.split("\n").length);
+  });
   test("fills an empty value", () => {
     const [varied] = vary("name:\ntraining: { batch: 1 }\n", "name=wide");
     expect(parse(varied!.text).name).toBe("wide");
