@@ -178,10 +178,29 @@ function branchWeight(branch: readonly z.core.$ZodIssue[]): number {
   return weight;
 }
 
+function isBound(issue: z.core.$ZodIssue): boolean {
+  return issue.code === "too_big" || issue.code === "too_small";
+}
+
+/**
+ * zod's own bound on every integer (±(2^53 − 1), the safe integers of IEEE 754 binary64): each integer key of the
+ * spec has a tighter bound of its own, which a value beyond 2^53 crosses too and which is the one to tell.
+ */
+function isSafeIntegerBound(issue: z.core.$ZodIssue): boolean {
+  if (issue.code === "too_big") return Number(issue.maximum) === Number.MAX_SAFE_INTEGER;
+  if (issue.code === "too_small") return Number(issue.minimum) === Number.MIN_SAFE_INTEGER;
+  return false;
+}
+
+function samePath(a: readonly PropertyKey[], b: readonly PropertyKey[]): boolean {
+  return a.length === b.length && a.every((segment, index) => segment === b[index]);
+}
+
 /** zod's issues (already given our messages by `errorMap`) as one issue per problem, with full paths. */
 export function flattenIssues(issues: readonly z.core.$ZodIssue[], prefix: (string | number)[] = []): RawIssue[] {
   const out: RawIssue[] = [];
   for (const issue of issues) {
+    if (isSafeIntegerBound(issue) && issues.some((other) => other !== issue && isBound(other) && samePath(other.path, issue.path))) continue;
     const path = [...prefix, ...issue.path.map((segment) => (typeof segment === "number" ? segment : String(segment)))];
     if (issue.message.startsWith(FINAL_MESSAGE)) {
       out.push({ path, atKey: false, message: issue.message.slice(FINAL_MESSAGE.length) });
