@@ -174,10 +174,11 @@ function checkExpansion(root: Record<string, unknown>, found: Found): void {
   const blocks = record(root["blocks"]) ?? {};
   const count = expandedCount(root["layers"], blocks, new Map());
   if (count > MAX_EXPANDED_LAYERS && Number.isFinite(count)) {
+    // a count just past the limit, written as 1.00e+6, would read as the limit itself
     found.errors.push({
       path: ["layers"],
       atKey: false,
-      message: `the network unrolls to ${count.toExponential(2)} layers (repeats and blocks expanded), beyond the limit of ${MAX_EXPANDED_LAYERS}`,
+      message: `the network unrolls to ${Number.isSafeInteger(count) ? count : count.toExponential(2)} layers (repeats and blocks expanded), beyond the limit of ${MAX_EXPANDED_LAYERS}`,
     });
   }
 }
