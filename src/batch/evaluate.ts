@@ -5,6 +5,7 @@
  */
 import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import type { RowError, SpecSummary } from "./types.js";
+import { decodeSpecBytes } from "../spec/text.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
 
 /** What a worker is asked to evaluate. */
@@ -26,8 +27,11 @@ export type TaskFailure = { status: "error"; error: RowError };
 
 /** How a task gets its pieces; `T` is what the judge gives (a batch row's summary). */
 export interface EvaluateHooks<T = SpecSummary> {
-  /** the text of a spec file; a thrown error with a `code` (ENOENT…) becomes an input error */
-  readText(file: string): Promise<string> | string;
+  /**
+   * the text of a spec file, or its bytes (decoded as UTF-8 here, so that bytes that are not UTF-8 are an input error
+   * at their position); a thrown error with a `code` (ENOENT…) becomes an input error
+   */
+  readText(file: string): Promise<string | Uint8Array> | string | Uint8Array;
   /** the spec's JSON Schema (or a function giving it, called only when a task has a variant), so --vary can add keys the file leaves to their defaults */
   schema?: Record<string, unknown> | (() => Record<string, unknown>);
   /** judge a valid spec; `locate` gives positions in the user's file (lines a variant added mapped back) */
@@ -107,16 +111,20 @@ export async function readSpecText(file: string, readText: EvaluateHooks["readTe
   if (!/\.(ya?ml|json)$/i.test(file)) {
     return inputError(`${file}: a spec is a .yaml, .yml or .json file`, { file });
   }
-  let text: string;
+  let read: string | Uint8Array;
   try {
-    text = await readText(file);
+    read = await readText(file);
   } catch (error) {
     return readError(file, error);
   }
-  if (text.length > MAX_SPEC_BYTES) {
+  if (read.length > MAX_SPEC_BYTES) {
     return inputError(`${file}: the file is above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`, { file });
   }
-  return text.charCodeAt(0) === 0xfeff ? text.slice(1) : text;
+  if (typeof read !== "string") {
+    const decoded = decodeSpecBytes(read, file);
+    return decoded.ok ? decoded.text : { status: "error", error: issuesError([decoded.issue]) };
+  }
+  return read.charCodeAt(0) === 0xfeff ? read.slice(1) : read;
 }
 
 /**

@@ -32,7 +32,7 @@ const MEASURED_KEPT = 8;
 
 serveTasks((task: Parameters<typeof evaluateTask>[0]) =>
   evaluateTask(task, {
-    readText: (file) => readFileSync(file, "utf8"),
+    readText: (file) => readFileSync(file),
     schema: lazySchema,
     // a spec's measured weights and statistics count here too
     judge: (spec) => {

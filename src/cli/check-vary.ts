@@ -23,7 +23,7 @@ export async function checkVariants(
 ): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
   const checkOptions: CheckAnswerOptions = judgeOptions(flags);
-  const text = await readSpecText(path, (file) => readFile(file, "utf8"));
+  const text = await readSpecText(path, (file) => readFile(file));
   if (typeof text !== "string") {
     // a file that cannot be read is no variant's problem: said once, as a plain check says it
     process.stderr.write(`${text.error.message}\n`);

@@ -9,6 +9,7 @@ import { normalizeSpec } from "./normalize.js";
 import { readPlainYaml } from "./plain-yaml.js";
 import { yamlLib } from "./yaml-lib.js";
 import { keepProtoEntries, specSchema, type RawSpec } from "./schema.js";
+import { decodeSpecBytes } from "./text.js";
 import { validPlainSpec } from "./validate.js";
 import type { NetworkSpec, SpecPath } from "./types.js";
 
@@ -252,8 +253,8 @@ export async function loadSpec(path: string): Promise<SpecResult> {
     if (info.size > MAX_SPEC_BYTES) {
       return wholeFile(path, `the file has ${info.size} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
     }
-    const text = await readFile(path, "utf8");
-    return parseSpec(text.charCodeAt(0) === 0xfeff ? text.slice(1) : text, path);
+    const decoded = decodeSpecBytes(await readFile(path), path);
+    return decoded.ok ? parseSpec(decoded.text, path) : { ok: false, issues: [decoded.issue] };
   } catch (error) {
     const code = (error as { code?: unknown }).code;
     if (code === "ENOENT") return wholeFile(path, "no such file");
