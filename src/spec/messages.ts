@@ -118,7 +118,7 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
       return unknownValueMessage(input, issue.values);
     case "invalid_format":
       if (issue.format === "regex") {
-        return `invalid name ${JSON.stringify(input)}: use letters, digits, "-" and "_", not starting with "-"`;
+        return `invalid name ${JSON.stringify(input)}: use ASCII letters (a-z, A-Z), digits, "-" and "_", not starting with "-"`;
       }
       return `invalid ${issue.format}: ${describeValue(input)}`;
     case "unrecognized_keys": {

@@ -74,7 +74,7 @@ function buildSchemas(z: typeof Zod) {
     .string()
     .regex(NAME_PATTERN)
     .describe(
-      "A name for the layer, unique within its list (letters, digits, '-' and '_'). Default: '<type>-<index>', " +
+      "A name for the layer, unique within its list (ASCII letters, digits, '-' and '_'). Default: '<type>-<index>', " +
         "e.g. 'dense-3' for the layer at index 3",
     )
     .optional();
