@@ -16,6 +16,18 @@ describe("the public API (src/index.ts)", () => {
       expect(typeof (api as Record<string, unknown>)[name], name).toBe("function");
     }
   });
+  test("exports every name the README's examples import from headroom, and the names its library section lists", () => {
+    const readme = readFileSync(new URL("../../README.md", import.meta.url), "utf8");
+    const imported = [...readme.matchAll(/import \{([^}]*)\} from "headroom"/g)].flatMap((m) => m[1]!.split(",").map((name) => name.trim()).filter((name) => /^\w+$/.test(name)));
+    expect(imported).toEqual(expect.arrayContaining(["check", "loadSpecMeasurements", "measuredNetwork", "simulate", "roundTo"]));
+    const library = readme.slice(readme.indexOf("## Library API"));
+    const listed = [...library.matchAll(/`([a-z][A-Za-z]+)\(/g)].map((m) => m[1]!);
+    expect(listed).toEqual(expect.arrayContaining(["batchCheck", "checkFile", "loadSpecMeasurements", "measuredNetwork"]));
+    for (const name of [...imported, ...listed]) expect(typeof (api as Record<string, unknown>)[name], name).not.toBe("undefined");
+  });
+  test("check takes the network measuredNetwork makes as its third argument (README, Library API)", () => {
+    expectTypeOf(api.check).parameter(2).extract<ReturnType<typeof api.measuredNetwork>>().toEqualTypeOf<ReturnType<typeof api.measuredNetwork>>();
+  });
   test("results are typed", () => {
     expectTypeOf(api.check).parameter(0).toEqualTypeOf<NetworkSpec>();
     expectTypeOf(api.check).returns.toEqualTypeOf<CheckAnswer>();
