@@ -605,9 +605,11 @@ function judgeFormat(
     const risks = tensor.risks;
     for (let j = 0; j < risks.length; j++) {
       const risk = risks[j] as TensorFormatRisk;
-      if (risk.format === format) for (let k = 0; k < risk.findings.length; k++) findings.push(risk.findings[k] as Finding);
+      if (risk.format !== format) continue;
+      for (let k = 0; k < risk.findings.length; k++) findings.push(risk.findings[k] as Finding);
+      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
+      if (risk.judged) tensorsJudged++;
     }
-    if (evaluated[tensor.slot] === format) tensorsJudged++;
   }
   for (let i = 0; i < hazards.length; i++) {
     const hazardFindings = (hazards[i] as HazardCheck).findings;
