@@ -550,6 +550,18 @@ function weighingSentence(window: ScaleWindow, weighing: PickWeighing, options: 
   return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick)}, the fewest of the window's scales without more overflow${closer}.`;
 }
 
+// which side of the window a given scale lies on, and what goes wrong there
+function outsideWords(window: ScaleWindow, scale: number): string {
+  const log2 = Math.log2(scale);
+  if (window.highestLog2 !== null && log2 > window.highestLog2) {
+    return `: ${binades(log2 - window.highestLog2)} above it, where ${window.upperEdgeSetBy ?? "the gradients"} overflow${window.upperEdgeSetBy === null ? "" : "s"} beyond the budget`;
+  }
+  if (window.lowestLog2 !== null && log2 < window.lowestLog2) {
+    return `: ${binades(window.lowestLog2 - log2)} below it, where ${window.lowerEdgeSetBy ?? "the gradients"} flush${window.lowerEdgeSetBy === null ? "" : "es"} beyond the tolerance`;
+  }
+  return "";
+}
+
 function binades(n: number): string {
   return `${n} binade${n === 1 ? "" : "s"}`;
 }
@@ -590,7 +602,7 @@ function describe(
     // the window's edges use the whole-model budget and a per-gradient energy tolerance, looser than the check's
     // per-tensor thresholds: a scale inside it can still carry tensor findings, which the sentence must not deny
     out.push(
-      `The spec's loss scale ${scaleWords(requested.scale)} is ${requested.inside ? "inside" : "outside"} the window (where the whole model overflows in at most ${plainNumber(options.riskBudget)} of the steps and no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${requested.inside ? "; each tensor is still judged against its own thresholds below" : ""}.`,
+      `The spec's loss scale ${scaleWords(requested.scale)} is ${requested.inside ? "inside" : "outside"} the window (where the whole model overflows in at most ${plainNumber(options.riskBudget)} of the steps and no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${requested.inside ? "; each tensor is still judged against its own thresholds below" : outsideWords(window, requested.scale)}.`,
     );
   }
   out.push("The scale is removed before the optimizer step and before gradient clipping, so their settings need no change (Micikevicius et al. 2018 §3.2).");
