@@ -192,7 +192,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       (result.rounded ? "" : " (no rounding: binary64 throughout; counts say what storing would do)"),
   );
   const seeds = result.seeds.length === 1 ? `seed ${result.seeds[0]}` : `seeds ${result.seeds[0]}–${result.seeds[result.seeds.length - 1]} (median of ${result.seeds.length} draws)`;
-  lines.push(`  ${seeds}; ${result.microBatches.run} of ${result.microBatches.wanted} micro-batch(es) per step; about ${formatBytes(result.memory.estimateBytes)} of memory`);
+  lines.push(`  ${seeds}; ${result.microBatches.run} of ${result.microBatches.wanted} micro-batch${result.microBatches.wanted === 1 ? "" : "es"} per step; about ${formatBytes(result.memory.estimateBytes)} of memory`);
   if (result.shrink.shrunk) {
     lines.push("", "Shrunk for speed:");
     for (const change of result.shrink.changes) lines.push(`  - ${change}`);
@@ -282,7 +282,7 @@ function disagreementLines(comparison: Comparison): string[] {
   const list = disagreements.slice(0, 20);
   for (const r of list) out.push(`  - ${describe(r)}`);
   if (disagreements.length > list.length) out.push(`  … and ${disagreements.length - list.length} more (see --json)`);
-  if (comparison.measuredOnly.length > 0) out.push(`  Measured only (no prediction for them): ${comparison.measuredOnly.length} inner tensor(s).`);
+  if (comparison.measuredOnly.length > 0) out.push(`  Measured only (no prediction for them): ${comparison.measuredOnly.length} inner tensor${comparison.measuredOnly.length === 1 ? "" : "s"}.`);
   return out;
 }
 

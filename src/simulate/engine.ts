@@ -618,7 +618,7 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
   if (setup.wantedMicroBatches > 1) {
     const { accumulationSteps: A, workers: W } = setup.spec.training;
     list.push(
-      `Each step runs ${setup.microBatches} of the ${setup.wantedMicroBatches} micro-batches (${A} accumulation step(s) × ${W} worker(s)); activations and their gradients are measured on the first.` +
+      `Each step runs ${setup.microBatches} of the ${setup.wantedMicroBatches} micro-batches (${A} accumulation step${A === 1 ? "" : "s"} × ${W} worker${W === 1 ? "" : "s"}); activations and their gradients are measured on the first.` +
         (setup.microBatches < setup.wantedMicroBatches ? ` The weight-gradient sums are multiplied by √(${setup.wantedMicroBatches}/${setup.microBatches}), taking the missing micro-batches as independent.` : ""),
     );
   }

@@ -141,7 +141,7 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
         (out !== undefined ? `; the output layer "${out.name}" keeps its width${spec.training.loss.kind === "cross-entropy" && f.classes > 1 ? " up to the class shrink" : ""}` : ""),
     );
   }
-  if (rescaled > 0) changes.push(`fixed-scale initialisations (normal std, uniform limit) of ${rescaled} layer spec(s) multiplied by √(fan-in ratio), so every layer keeps its gain fan_in·var_w`);
+  if (rescaled > 0) changes.push(`fixed-scale initialisations (normal std, uniform limit) of ${rescaled} layer spec${rescaled === 1 ? "" : "s"} multiplied by √(fan-in ratio), so every layer keeps its gain fan_in·var_w`);
   if (training.batch !== spec.training.batch) changes.push(`batch ${spec.training.batch} → ${training.batch}`);
   if (spec.input.kind !== "image" && input.kind !== "image" && input.positions !== spec.input.positions) {
     changes.push(`positions ${spec.input.positions} → ${input.positions}`);

@@ -166,6 +166,9 @@ describe("simulation engine", () => {
     const r = runSimulation(s, { microBatches: 2 });
     expect(r.microBatches).toEqual({ run: 2, wanted: 4 });
     expect(r.assumptions.join(" ")).toContain("√(4/2)");
+    expect(r.assumptions.join(" ")).toContain("(2 accumulation steps × 2 workers)");
+    const one = runSimulation(spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  accumulation-steps: 1")), { microBatches: 1 });
+    expect(one.assumptions.join(" ")).toContain("(1 accumulation step × 2 workers)");
   });
 
   it("names the accumulate format once, and the plan's tf32 beside the binary32 it is simulated in", () => {
