@@ -155,7 +155,7 @@ describe("a loss scale the spec gives", () => {
     const outside = lossScaleAnswer(prediction(g), { ...plan, lossScale: 2 ** 30 });
     expect(outside.requested?.inside).toBe(false);
     expect(outside.sentences.find((s) => s.startsWith("The spec's loss scale"))).toBe(
-      "The spec's loss scale 2^30 is outside the window (where the whole model overflows in at most 1e-4 of the steps and no gradient loses more than 0.1% of its squared norm to flushing).",
+      "The spec's loss scale 2^30 is outside the window (where the whole model overflows in at most 1e-4 of the steps and no gradient loses more than 0.1% of its squared norm to flushing): 7 binades above it, where g/activation-gradient overflows beyond the budget.",
     );
   });
 });
