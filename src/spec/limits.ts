@@ -17,6 +17,19 @@ export const MAX_EXPANDED_LAYERS = 1_000_000;
 /** Layer and block names: letters, digits, "_" and "-", starting with a letter, digit or "_". */
 export const NAME_PATTERN = /^[A-Za-z0-9_][A-Za-z0-9_-]*$/;
 
+/**
+ * Control characters a spec's free text (`name`, `description`) may not hold: C0 but tab, LF and CR, DEL, and C1
+ * (Unicode's Cc category). They reach terminals as they are, and ESC or CSI there starts a command (ECMA-48 §5.3).
+ */
+export const CONTROL_CHARACTER = /[\u0000-\u0008\u000b\u000c\u000e-\u001f\u007f-\u009f]/;
+
+/** The message for free text holding a control character, naming the first. */
+export function controlCharacterMessage(text: string): string {
+  const found = CONTROL_CHARACTER.exec(text)?.[0] ?? "";
+  const code = found.charCodeAt(0).toString(16).toUpperCase().padStart(4, "0");
+  return `holds the control character U+${code}, which a terminal would act on; remove it`;
+}
+
 /** Every layer `type` a spec may use. */
 export const LAYER_TYPES = [
   "dense",

@@ -12,6 +12,8 @@ import {
   ACTIVATION_TYPES,
   ATTENTION_SCALINGS,
   BARE_LAYER_TYPES,
+  CONTROL_CHARACTER,
+  controlCharacterMessage,
   DISTRIBUTIONS,
   FAN_RULES,
   FINAL_MESSAGE,
@@ -30,6 +32,11 @@ import {
   REDUCTIONS,
   WORKER_GRADIENTS,
 } from "./limits.js";
+
+/** Free text (a name, a description) without control characters. */
+function freeText(text: Zod.ZodString) {
+  return text.refine((value: string) => !CONTROL_CHARACTER.test(value), { error: (issue) => `${FINAL_MESSAGE}${controlCharacterMessage(String(issue.input))}` });
+}
 
 /** `; unknown key "featurs" (did you mean "features"?)` for each key of `input` that no kind of input has. */
 function misspeltInputKeys(input: object, inputKeys: readonly string[]): string {
@@ -511,8 +518,8 @@ function buildSchemas(z: typeof Zod) {
   const specSchema = z
     .strictObject({
       $schema: z.string().describe("The JSON Schema this file follows (for editors); ignored").optional(),
-      name: z.string().min(1).describe("The network's name (default: the file name)").optional(),
-      description: z.string().describe("What the network is for").optional(),
+      name: freeText(z.string().min(1)).describe("The network's name (default: the file name)").optional(),
+      description: freeText(z.string()).describe("What the network is for").optional(),
       input: input,
       training,
       precision: z

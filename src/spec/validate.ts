@@ -12,6 +12,7 @@ import {
   ACTIVATION_TYPES,
   ATTENTION_SCALINGS,
   BARE_LAYER_TYPES,
+  CONTROL_CHARACTER,
   DISTRIBUTIONS,
   FAN_RULES,
   INIT_SHORTHANDS,
@@ -77,6 +78,7 @@ const fraction = (value: unknown): number => (finite(value) >= 0 && (value as nu
 const boolean = (value: unknown): boolean => (typeof value === "boolean" ? value : refuse());
 const string = (value: unknown): string => (typeof value === "string" ? value : refuse());
 const nonEmpty = (value: unknown): string => (string(value).length >= 1 ? (value as string) : refuse());
+const text = (value: unknown): string => (CONTROL_CHARACTER.test(string(value)) ? refuse() : (value as string));
 const name = (value: unknown): string => (NAME_PATTERN.test(string(value)) ? (value as string) : refuse());
 
 // An accepted name is returned as the list's own literal, not the string read from the document: a literal is an
@@ -453,8 +455,8 @@ export function validPlainSpec(data: Record<string, unknown>): RawSpec | undefin
     const raw = mapping(data, SPEC_KEYS);
     const out: Data = {};
     optional(out, raw, "$schema", string);
-    optional(out, raw, "name", nonEmpty);
-    optional(out, raw, "description", string);
+    optional(out, raw, "name", (value) => text(nonEmpty(value)));
+    optional(out, raw, "description", text);
     out["input"] = input(raw["input"]);
     out["training"] = training(raw["training"]);
     optional(out, raw, "precision", (precision) => (typeof precision === "string" ? name(precision) : plan(precision, false)));
