@@ -113,17 +113,28 @@ function warningLines(rows: readonly BatchRow[]): string[] {
   for (const row of rows) {
     if (row.status !== "ok" || row.warnings === undefined) continue;
     const variant = row.variant ? ` [${row.variant}]` : "";
-    for (const warning of row.warnings) lines.push(`${warning}${variant}`);
+    for (const warning of row.warnings) lines.push(visible(`${warning}${variant}`));
   }
   return lines;
+}
+
+// C0 and C1 control characters and DEL (Unicode's Cc category), line breaks and tabs included
+const CONTROL = /[\u0000-\u001f\u007f-\u009f]/g;
+
+/**
+ * Text for a terminal line: a file name may hold line breaks or ESC, which would break the table or start a terminal
+ * command (ECMA-48 §5.3); each is shown as its JSON escape instead (`\n`, `\u001b`).
+ */
+function visible(text: string): string {
+  return text.replace(CONTROL, (c) => JSON.stringify(c).slice(1, -1));
 }
 
 function errorLine(row: Extract<BatchRow, { status: "error" }>): string {
   const variant = row.variant ? ` [${row.variant}]` : "";
   const kind = row.error.kind === "internal" ? "internal error: " : "";
   // messages name their file (with the line and column) already; say it once
-  if (row.error.message.startsWith(row.file)) return `${kind}${row.error.message}${variant}`;
-  return `${row.file}${variant}: ${kind}${row.error.message}`;
+  if (row.error.message.startsWith(row.file)) return visible(`${kind}${row.error.message}${variant}`);
+  return visible(`${row.file}${variant}: ${kind}${row.error.message}`);
 }
 
 /** Options of the text renderer. */
@@ -151,7 +162,7 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
     { title: "risk", align: "right" },
   ];
   const cells = rows.map((row): Cell[] => {
-    const lead: Cell[] = [row.index + 1, row.file, ...(withVariants ? [row.variant ?? ""] : [])];
+    const lead: Cell[] = [row.index + 1, visible(row.file), ...(withVariants ? [visible(row.variant ?? "")] : [])];
     if (row.status === "error") {
       return [...lead, paintVerdict(style, "error"), ...formats.map(() => ""), "", "", "", ""];
     }
