@@ -6,7 +6,7 @@ import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./gra
 import { predict } from "./magnitude/index.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
-import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type WeightCalibration } from "./measure/index.js";
+import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
 import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
@@ -98,7 +98,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   const network = networkFor(spec, measurements);
   if (!network.built.ok) throw new CheckInputError(network.built.issues);
   const planned = { ...spec, precision: plan };
-  const prediction = measuredPrediction(network.built.graph, network, planned);
+  const { prediction, unused } = measuredPrediction(network.built.graph, network, planned);
   let answers = lossScaleAnswers(prediction, plan, formats, options, spec.training.horizon.steps);
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
@@ -138,9 +138,12 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   }
   const answer = told[0] ?? null;
   const lossScales = lossScaleItems(judged, plan, told);
-  return told.length > 1
-    ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), lossScales, optimizer }
-    : { ...judged, verdict, lossScaleAnswer: answer, lossScales, optimizer };
+  const result: CheckAnswer =
+    told.length > 1
+      ? { ...judged, verdict, lossScaleAnswer: answer, moreLossScaleAnswers: told.slice(1), lossScales, optimizer }
+      : { ...judged, verdict, lossScaleAnswer: answer, lossScales, optimizer };
+  if (unused.length > 0) result.unusedStatistics = unused;
+  return result;
 }
 
 /**
@@ -321,12 +324,13 @@ function sameNetwork(a: NetworkSpec, b: NetworkSpec): boolean {
  * The prediction, with measured data where the spec has it: measured weights replace the initialisation before
  * propagation; recorded statistics replace profiles after it (src/measure/calibrate.ts).
  */
-function measuredPrediction(graph: Graph, network: MeasuredNetwork, spec: NetworkSpec): Prediction {
+function measuredPrediction(graph: Graph, network: MeasuredNetwork, spec: NetworkSpec): { prediction: Prediction; unused: UnusedStatistic[] } {
   const measurements = network.measurements;
-  if (measurements === undefined) return predict(graph, spec);
+  if (measurements === undefined) return { prediction: predict(graph, spec), unused: [] };
   const calibration = network.calibration;
   const prediction = predict(calibration?.graph ?? graph, spec);
-  return applyMeasurements(prediction, calibration, measurements.statistics, measurements.statisticsFile).prediction;
+  const applied = applyMeasurements(prediction, calibration, measurements.statistics, measurements.statisticsFile);
+  return { prediction: applied.prediction, unused: applied.report.unusedStatistics };
 }
 
 /**

@@ -252,6 +252,20 @@ export interface MeasurementReport {
   measured: string[];
   /** recorded statistics no tensor of the prediction matched */
   unmatchedStatistics: RecordedStatistic[];
+  /** the same rows, each with the tensors its layer name and role fit when more than one does (none: no tensor) */
+  unusedStatistics: UnusedStatistic[];
+}
+
+/** A recorded row no tensor took: its tensor and role as written, where it was read, the tensors it could mean. */
+export interface UnusedStatistic {
+  tensor: string;
+  role: RecordedStatistic["role"];
+  /** where it was read: the CSV line, or the JSON path */
+  at: string;
+  /** the tensors of that layer with that role when there are several (the row must name one by its id); empty when none fits */
+  candidates: string[];
+  /** the row in words: `stage (activation-gradient, line 3) fits 2 tensors (a, b): name one by its id` */
+  sentence: string;
 }
 
 /** A tail this much heavier than a Gaussian's expected maximum is modelled as log-normal. */
@@ -310,13 +324,18 @@ export function applyMeasurements(
     }
   }
   const unmatchedStatistics: RecordedStatistic[] = [];
+  const unusedStatistics: UnusedStatistic[] = [];
   for (const statistic of statistics) {
-    const tensor = findTensor(prediction.tensors, statistic);
-    if (!tensor) {
+    const found = findTensor(prediction.tensors, statistic);
+    if (found === undefined || Array.isArray(found)) {
       unmatchedStatistics.push(statistic);
+      const candidates = found ?? [];
+      const head = `${statistic.tensor} (${statistic.role}, ${statistic.at})`;
+      const sentence = candidates.length === 0 ? `${head} matches no tensor` : `${head} fits ${candidates.length} tensors (${candidates.join(", ")}): name one by its id`;
+      unusedStatistics.push({ tensor: statistic.tensor, role: statistic.role, at: statistic.at, candidates, sentence });
       continue;
     }
-    replaced.set(tensor.id, { start: recordedProfile(statistic, tensor) });
+    replaced.set(found.id, { start: recordedProfile(statistic, found) });
   }
   const tensors = prediction.tensors.map((tensor): TensorPrediction => {
     const change = replaced.get(tensor.id);
@@ -337,7 +356,7 @@ export function applyMeasurements(
       source: "measured",
     };
   });
-  const report: MeasurementReport = { measured: [...replaced.keys()], unmatchedStatistics };
+  const report: MeasurementReport = { measured: [...replaced.keys()], unmatchedStatistics, unusedStatistics };
   const notes = measurementNotes(calibration, statistics, statisticsFile, report);
   return { prediction: { ...prediction, tensors, assumptions: [...prediction.assumptions, ...notes] }, report };
 }
@@ -396,7 +415,7 @@ function measurementNotes(
       `Recorded statistics${statisticsFile ? ` from ${statisticsFile}` : ""} replace ${matched} profile${matched === 1 ? "" : "s"}; tensors downstream of them keep their predictions.`,
     );
     if (report.unmatchedStatistics.length > 0) {
-      notes.push(`${report.unmatchedStatistics.length} recorded row${report.unmatchedStatistics.length === 1 ? " matches" : "s match"} no tensor: ${listed(report.unmatchedStatistics.map((s) => `${s.tensor} (${s.role})`))}.`);
+      notes.push(`${report.unusedStatistics.length} recorded row${report.unusedStatistics.length === 1 ? " is" : "s are"} not used: ${listed(report.unusedStatistics.map((u) => u.sentence))}.`);
     }
   }
   if (report.measured.length > 0) {
@@ -406,12 +425,16 @@ function measurementNotes(
 }
 
 /** A recorded statistic's tensor: its id, or its layer name with the role (unique within the layer). */
-function findTensor(tensors: readonly TensorPrediction[], statistic: RecordedStatistic): TensorPrediction | undefined {
+// the tensor a row names (by id, or by layer and role when one tensor fits), else the ids of the several that fit, or
+// undefined when none does
+function findTensor(tensors: readonly TensorPrediction[], statistic: RecordedStatistic): TensorPrediction | string[] | undefined {
   const byId = tensors.find((t) => t.id === statistic.tensor);
   if (byId) return byId.role === statistic.role ? byId : undefined;
   const candidates = tensors.filter((t) => t.layer === statistic.tensor && t.role === statistic.role);
-  return candidates.length === 1 ? candidates[0] : undefined;
+  if (candidates.length === 0) return undefined;
+  return candidates.length === 1 ? candidates[0] : candidates.map((t) => t.id);
 }
+
 
 /** The profile a recorded statistic gives: rms over all elements, zero share (default: the prediction's), tail shape. */
 export function recordedProfile(statistic: RecordedStatistic, predicted: TensorPrediction): MagnitudeProfile {

@@ -21,6 +21,7 @@ export {
   type MatchRule,
   type MeasurementReport,
   type RejectedMatch,
+  type UnusedStatistic,
   type WeightCalibration,
   type WeightFileData,
   type WeightMatch,

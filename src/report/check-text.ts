@@ -327,6 +327,11 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
     const names = measured.length > 8 ? `${measured.slice(0, 8).join(", ")} and ${measured.length - 8} more` : measured.join(", ");
     out += wrap(`measured profiles: ${names}; every other profile is predicted.`, width, "", "  ");
   }
+  // recorded rows no tensor took: said here, not only among the assumptions, as the user asked for them
+  const unused = result.unusedStatistics ?? [];
+  if (unused.length > 0) {
+    out += wrap(`recorded statistics not used: ${unused.map((u) => u.sentence).join("; ")}.`, width, "", "  ");
+  }
 
   out += "\n" + style.role("strong", "Verdict") + ` ${verdictText(result.verdict, style)}\n`;
   out += "\n" + style.role("strong", "Verdict per format") + "\n";

@@ -148,6 +148,12 @@ export interface CheckResult {
   thresholds: RiskThresholds;
   /** what the prediction and the judgement assume, one sentence each */
   assumptions: string[];
+  /**
+   * rows of the spec's recorded statistics that no tensor took (set by `check`; absent when every row was used): the
+   * tensor and role as written, where the row was read, the tensors it could mean when several fit (empty: none), and
+   * all that in words
+   */
+  unusedStatistics?: { tensor: string; role: TensorRole; at: string; candidates: string[]; sentence: string }[];
   /** the reminder that these are estimates, and the run that confirms them */
   caution: string;
 }

@@ -227,6 +227,30 @@ describe("recorded statistics", () => {
     expect(report.unmatchedStatistics.map((u: RecordedStatistic) => u.tensor)).toEqual(["nowhere"]);
     expect(out.tensors.filter((t) => t.source === "measured").length).toBe(2);
   });
+
+  it("a row whose layer and role fit several tensors is not used, and says which it could mean", () => {
+    const s = spec();
+    const built = buildGraph(s);
+    if (!built.ok) throw new Error("graph");
+    const prediction = predict(built.graph, s);
+    // fc1 has two weight gradients, the matrix's and the bias's: the row cannot tell which
+    const parsed = parseRecordedStatistics("tensor,role,rms\nfc1,weight-gradient,0.01\nfc1/weight-gradient:bias,weight-gradient,0.02\nnowhere,activation,1\n", "stats.csv");
+    if (!parsed.ok) throw new Error("parse");
+    const { prediction: out, report } = applyMeasurements(prediction, undefined, parsed.statistics);
+    expect(report.unusedStatistics).toEqual([
+      {
+        tensor: "fc1",
+        role: "weight-gradient",
+        at: "line 2",
+        candidates: ["fc1/weight-gradient", "fc1/weight-gradient:bias"],
+        sentence: "fc1 (weight-gradient, line 2) fits 2 tensors (fc1/weight-gradient, fc1/weight-gradient:bias): name one by its id",
+      },
+      { tensor: "nowhere", role: "activation", at: "line 4", candidates: [], sentence: "nowhere (activation, line 4) matches no tensor" },
+    ]);
+    // the row naming one by its id is used
+    expect(out.tensors.filter((t) => t.source === "measured").map((t) => t.id)).toEqual(["fc1/weight-gradient:bias"]);
+    expect(out.assumptions.join(" ")).toContain("2 recorded rows are not used: fc1 (weight-gradient, line 2) fits 2 tensors");
+  });
 });
 
 describe("calibrateGraph names map", () => {

@@ -43,6 +43,26 @@ describe("check with measured data", () => {
     expect(text.stdout).toMatch(/measured profiles: fc1\/weight, fc2\/pre-activation; every other profile is predicted\./);
   });
 
+  it("recorded rows no tensor takes are named in the result and under the header, with the tensors a row could mean", () => {
+    const path = join(files.dir, "unused-rows.yaml");
+    writeFileSync(join(files.dir, "unused.csv"), "tensor,role,rms\nfc2,pre-activation,0.25\nfc1,weight-gradient,0.01\nfc9,activation,1\n");
+    // fc1 with a bias: two weight gradients, the matrix's and the bias's
+    writeFileSync(path, spec("measured:\n  statistics: unused.csv\n").replace("bias: false\n    init: he-normal", "init: he-normal"));
+    const result = JSON.parse(runCli(["check", path, "--json"]).stdout);
+    expect(result.unusedStatistics.map((u: { tensor: string; at: string; candidates: string[] }) => [u.tensor, u.at, u.candidates])).toEqual([
+      ["fc1", "line 3", ["fc1/weight-gradient", "fc1/weight-gradient:bias"]],
+      ["fc9", "line 4", []],
+    ]);
+    const text = runCli(["check", path]).stdout.replace(/\s+/g, " ");
+    expect(text).toContain(
+      "recorded statistics not used: fc1 (weight-gradient, line 3) fits 2 tensors (fc1/weight-gradient, fc1/weight-gradient:bias): name one by its id; fc9 (activation, line 4) matches no tensor.",
+    );
+    // every row used: no such field
+    const used = join(files.dir, "used-rows.yaml");
+    writeFileSync(used, spec("measured:\n  statistics: stats.csv\n"));
+    expect(JSON.parse(runCli(["check", used, "--json"]).stdout).unusedStatistics).toBeUndefined();
+  });
+
   it("the same spec without the checkpoint predicts from initialisation, 3000/sqrt(2/16) times smaller", async () => {
     const path = join(files.dir, "plain.yaml");
     writeFileSync(path, spec(""));
