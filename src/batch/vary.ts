@@ -93,6 +93,13 @@ export function parseVaryOption(option: string): VaryAxis {
   const texts = splitValues(option.slice(equals + 1)).map((text) => text.trim());
   const values = texts.map((text): VaryValue => {
     if (text === "") throw new VaryError(`--vary ${key}: an empty value; list values separated by commas`);
+    // YAML reads "#x" as a comment (no value), "&a b" and "!t b" as "b" with an anchor or a tag (YAML 1.2.2 §6.6, §6.9):
+    // none is the value the user typed, so say how to write it
+    const mark = /^["']/.test(text) ? undefined : (/^[#&!]/.exec(text)?.[0] ?? (/\s#/.test(text) ? " #" : undefined));
+    if (mark !== undefined) {
+      const what = mark === "&" ? "an anchor" : mark === "!" ? "a tag" : "a comment";
+      throw new VaryError(`--vary ${key}: YAML reads ${JSON.stringify(mark.trim())} in ${JSON.stringify(text)} as ${what}; quote the value ('${text.replaceAll("'", "''")}')`);
+    }
     let value: unknown;
     try {
       value = yamlLib().parse(text);

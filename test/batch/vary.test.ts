@@ -30,6 +30,14 @@ describe("parseVaryOption", () => {
     // a quote inside a plain value starts no quoted scalar (YAML 1.2.2 §7.3.3)
     expect(parseVaryOption(`name=it's,x`).values.map((v) => v.value)).toEqual(["it's", "x"]);
   });
+  test("a value YAML would read as a comment, an anchor or a tag is refused with how to quote it (YAML 1.2.2 §6.6, §6.9.2)", () => {
+    expect(() => parseVaryOption("name=#north")).toThrow(`--vary name: YAML reads "#" in "#north" as a comment; quote the value ('#north')`);
+    expect(() => parseVaryOption("name=tide #2")).toThrow(/reads "#" in "tide #2" as a comment; quote the value \('tide #2'\)/);
+    expect(() => parseVaryOption("name=&a b")).toThrow(/as an anchor/);
+    expect(() => parseVaryOption("name=!t b")).toThrow(/as a tag/);
+    // quoted, or with # inside a word, they are the text typed
+    expect(parseVaryOption(`name='#north',"tide #2",a#b`).values.map((v) => v.value)).toEqual(["#north", "tide #2", "a#b"]);
+  });
   test("refuses a missing =, empty values, duplicates and non-scalars", () => {
     expect(() => parseVaryOption("training.batch")).toThrow(/expected KEY=VALUE1/);
     expect(() => parseVaryOption("training.batch=8,,16")).toThrow(/empty value/);
