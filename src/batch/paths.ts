@@ -3,6 +3,7 @@
  * *.yaml / *.yml, globs, and `-` for a list of paths read from stdin. The file system is passed in,
  * so this stays pure and testable; the CLI passes node:fs.
  */
+import { resolve } from "node:path";
 import { globBase, globToRegExp, hasGlob } from "./glob.js";
 
 /** What expansion needs from a file system. */
@@ -94,7 +95,8 @@ export function expandInputs(host: PathHost, args: readonly string[], options: E
   const out: BatchInput[] = [];
   const seen = new Set<string>();
   const addFile = (path: string, argument: string): void => {
-    const key = path.startsWith("./") ? path.slice(2) : path;
+    // one file however it is written: ./a.yaml, specs//a.yaml, specs/../specs/a.yaml, or its absolute path
+    const key = resolve(path);
     if (seen.has(key)) return;
     seen.add(key);
     out.push({ kind: "file", path, argument });

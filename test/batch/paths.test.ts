@@ -1,4 +1,8 @@
+import { mkdirSync, mkdtempSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
 import { describe, expect, test } from "vitest";
+import { nodePathHost } from "../../src/batch/files.js";
 import { expandInputs, pathsFromText, specFilesIn, type PathHost } from "../../src/batch/paths.js";
 
 /** An in-memory file system: paths ending in "/" are folders. */
@@ -94,5 +98,22 @@ describe("expandInputs", () => {
   test("symbolic links to files are followed, links to folders are not walked", () => {
     const host = memoryHost(["real/a.yaml", "top/"], { "top/link.yaml": "real/a.yaml", "top/loop": "top" });
     expect(specFilesIn(host, "top")).toEqual(["top/link.yaml"]);
+  });
+});
+
+describe("expandInputs on the file system", () => {
+  test("lists a file once however its path is written (./, //, .., absolute), at its first place", () => {
+    const dir = mkdtempSync(join(tmpdir(), "headroom-paths-"));
+    try {
+      mkdirSync(join(dir, "tide"));
+      writeFileSync(join(dir, "tide", "north.yaml"), "name: north\n");
+      writeFileSync(join(dir, "tide", "south.yaml"), "name: south\n");
+      const north = join(dir, "tide", "north.yaml");
+      const written = [`${dir}/tide//north.yaml`, `${dir}/tide/../tide/north.yaml`, north, `${dir}/./tide/north.yaml`, join(dir, "tide")];
+      const inputs = expandInputs(nodePathHost, written);
+      expect(inputs.map((input) => (input.kind === "file" ? input.path : input.message))).toEqual([`${dir}/tide//north.yaml`, join(dir, "tide", "south.yaml")]);
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
   });
 });
