@@ -37,6 +37,20 @@ export function describeValue(value: unknown): string {
   return typeof value;
 }
 
+/**
+ * Why text that looks like a number is not one, where a number was expected: YAML 1.2's core schema (§10.3.2) reads
+ * quoted scalars as strings, and has no digit separators (1_000 was YAML 1.1's).
+ */
+function numberHint(input: unknown, expected: string): string {
+  if ((expected !== "number" && expected !== "int") || typeof input !== "string") return "";
+  const plain = input.trim();
+  if (/^[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?$/.test(plain)) return " (quoted, so YAML reads it as text; remove the quotes)";
+  if (/^[-+]?\d[\d_,]*(?:\.\d*)?(?:[eE][-+]?\d+)?$/.test(plain)) {
+    return ` (YAML 1.2 has no digit separators; write ${plain.replace(/[_,]/g, "")})`;
+  }
+  return "";
+}
+
 const EXPECTED: Record<string, string> = {
   number: "a number",
   int: "an integer",
@@ -92,7 +106,7 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
       if (typeof input === "number" && !Number.isFinite(input) && (issue.expected === "number" || issue.expected === "int")) {
         return `expected a finite number, got ${describeValue(input)}`;
       }
-      return `expected ${expectedWords(issue.expected)}, got ${describeValue(input)}`;
+      return `expected ${expectedWords(issue.expected)}, got ${describeValue(input)}${numberHint(input, issue.expected)}`;
     }
     case "too_small": {
       const minimum = Number(issue.minimum);
