@@ -38,10 +38,18 @@ export function describeValue(value: unknown): string {
 }
 
 /**
- * Why text that looks like a number is not one, where a number was expected: YAML 1.2's core schema (§10.3.2) reads
- * quoted scalars as strings, and has no digit separators (1_000 was YAML 1.1's).
+ * Why text that looks like a number or a boolean is not one, where one was expected: YAML 1.2's core schema (§10.3.2)
+ * reads quoted scalars as strings, and has no digit separators (1_000) and no yes/no/on/off booleans (YAML 1.1's).
  */
 function numberHint(input: unknown, expected: string): string {
+  if (expected === "boolean" && typeof input === "string") {
+    // YAML 1.1's booleans; the 1.2 core schema (§10.3.2) has only true and false
+    const word = input.trim().toLowerCase();
+    if (word === "true" || word === "false") return " (quoted, so YAML reads it as text; remove the quotes)";
+    if (/^(?:y|yes|on)$/.test(word)) return ` (YAML 1.2 reads ${input} as text; write true)`;
+    if (/^(?:n|no|off)$/.test(word)) return ` (YAML 1.2 reads ${input} as text; write false)`;
+    return "";
+  }
   if ((expected !== "number" && expected !== "int") || typeof input !== "string") return "";
   const plain = input.trim();
   if (/^[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?$/.test(plain)) return " (quoted, so YAML reads it as text; remove the quotes)";
