@@ -92,6 +92,7 @@ export function gradientCopy(g: Gradient): Gradient {
     fresh: g.fresh,
     shared: g.shared,
     positionCorrelation: g.positionCorrelation,
+    crossCorrelation: g.crossCorrelation,
     allZero: g.allZero,
     windowMaximum: g.windowMaximum,
     reluGated: g.reluGated,
@@ -156,11 +157,27 @@ export function positionCorrelationOf(s: Signal | Gradient): number {
   return s.positionCorrelation === undefined ? sampleCorrelationOf(s) : clampCorrelation(s.positionCorrelation);
 }
 
-/** Mean correlation over all pairs of the batch × positions terms (two positions of one sample, or two samples). */
-export function meanPairCorrelation(batch: number, positions: number, sampleCorrelation: number, positionCorrelation: number): number {
+/** Correlation between two samples at two different positions, same feature; the sample correlation when unset. */
+export function crossCorrelationOf(s: Signal | Gradient): number {
+  return "crossCorrelation" in s && s.crossCorrelation !== undefined ? clampCorrelation(s.crossCorrelation) : sampleCorrelationOf(s);
+}
+
+/**
+ * Mean correlation over all pairs of the batch × positions terms: two positions of one sample (ρ_position), one
+ * position of two samples (ρ_sample), two positions of two samples (ρ_cross, by default ρ_sample).
+ */
+export function meanPairCorrelation(
+  batch: number,
+  positions: number,
+  sampleCorrelation: number,
+  positionCorrelation: number,
+  crossCorrelation = sampleCorrelation,
+): number {
   const terms = batch * positions;
   if (terms < 2) return 0;
-  const pairs = (positions - 1) * clampCorrelation(positionCorrelation) + (batch - 1) * positions * clampCorrelation(sampleCorrelation);
+  const pairs =
+    (positions - 1) * clampCorrelation(positionCorrelation) +
+    (batch - 1) * (clampCorrelation(sampleCorrelation) + (positions - 1) * clampCorrelation(crossCorrelation));
   return pairs / (terms - 1);
 }
 
@@ -169,10 +186,17 @@ export function meanPairCorrelation(batch: number, positions: number, sampleCorr
  * ρ_position (two positions of one sample) or ρ_sample (two samples): N·q·(1 + (N − 1)·ρ̄), the variance of a sum of
  * N correlated terms with ρ̄ their mean pairwise correlation (common practice).
  */
-export function correlatedSum(batch: number, positions: number, q: number, sampleCorrelation: number, positionCorrelation: number): number {
+export function correlatedSum(
+  batch: number,
+  positions: number,
+  q: number,
+  sampleCorrelation: number,
+  positionCorrelation: number,
+  crossCorrelation = sampleCorrelation,
+): number {
   const terms = batch * positions;
   // a sum forced to zero (a gradient below batch norm summed over its batch) has no second moment left
-  return Math.max(terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation)), 0);
+  return Math.max(terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation, crossCorrelation)), 0);
 }
 
 /**
@@ -181,7 +205,8 @@ export function correlatedSum(batch: number, positions: number, q: number, sampl
  * (`input` omitted), the sum of the gradient itself, as for a bias.
  */
 export function gradientSum(batch: number, positions: number, delta: Gradient, input?: Signal): number {
-  if (input === undefined) return correlatedSum(batch, positions, delta.q, sampleCorrelationOf(delta), positionCorrelationOf(delta));
+  if (input === undefined) return correlatedSum(batch, positions, delta.q, sampleCorrelationOf(delta), positionCorrelationOf(delta), crossCorrelationOf(delta));
   const sample = sampleCorrelationOf(input) * sampleCorrelationOf(delta);
-  return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta));
+  const cross = crossCorrelationOf(input) * crossCorrelationOf(delta);
+  return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta), cross);
 }

@@ -75,6 +75,13 @@ export interface Gradient {
   shared?: number;
   /** as Signal.positionCorrelation, for the gradient */
   positionCorrelation?: number;
+  /**
+   * E[δ·δ']/q for two different samples at two different positions (one feature): absent, the sample correlation (what
+   * samples share is taken as shared at every position, as a forward signal's mean is). Flatten's backward sets 0: its
+   * positions were different features of the layer after it, whose independent weights leave them nothing in common
+   * across samples but the same feature; maps that keep positions apart (convolutions, pools, activations) keep it.
+   */
+  crossCorrelation?: number;
   /** as Signal.allZero: share of features whose gradient is exactly zero at every term (a ReLU off for the whole batch) */
   allZero?: number;
   /**

@@ -309,6 +309,8 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
   if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
   if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);
+  // two samples at two positions: the derivatives pair as two samples' do
+  if (output.crossCorrelation !== undefined && derivativeSecond > 0) gradient.crossCorrelation = Math.min((sampleCross * output.crossCorrelation) / derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
   if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output) };

@@ -103,6 +103,8 @@ export function linearBackward(
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
   if (output.shared !== undefined) input.shared = gain * output.shared;
   input.positionCorrelation = positionCorrelationOf(output);
+  // weights shared across positions pair two positions of two samples with such pairs of the output gradient
+  if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation;
   return {
     input,
     factors: ctx.ledger ? [factor(gain, rule, SOURCES.backward)] : NO_FACTORS,

@@ -1,5 +1,5 @@
 /** Flatten: a reshape; every moment passes through unchanged. */
-import { gradientCopy, sampleCorrelationOf } from "../common.js";
+import { gradientCopy } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, Signal } from "../types.js";
 
 export const flattenRule: AnalyticRule<null> = {
@@ -7,9 +7,12 @@ export const flattenRule: AnalyticRule<null> = {
     return { output: input, factors: [], role: "activation", inner: [], hazards: [], stash: null };
   },
   backward(_ctx, _layer, _stash, output: Gradient): BackwardResult {
-    // different features of the flat gradient become different positions: they share only what samples share
+    // different features of the flat gradient become different positions. The layer after a flatten maps its features
+    // by independent weights, so two of them share nothing, in one sample or across two (mean-field independence of
+    // the weights, Schoenholz et al. 2017): only one position of two samples keeps the sample correlation
     const input = gradientCopy(output);
-    input.positionCorrelation = sampleCorrelationOf(output);
+    input.positionCorrelation = 0;
+    input.crossCorrelation = 0;
     return { input, factors: [], inner: [], weightGradients: [] };
   },
 };

@@ -9,7 +9,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt, gradientCopy, positionCorrelationOf, sharedOf } from "../common.js";
+import { NO_FACTORS, factor, fmt, gradientCopy, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -119,6 +119,10 @@ export const poolRule: AnalyticRule<null> = {
       input.q = output.q * ratio;
       input.shared = (output.shared ?? 0) * ratio;
       input.positionCorrelation = positionCorrelation;
+      // two samples' pixels in one window share one output pixel of two samples; in two windows, two output pixels
+      if (output.crossCorrelation !== undefined && pixels > 1) {
+        input.crossCorrelation = (within * sampleCorrelationOf(output) + (pixels - 1 - within) * output.crossCorrelation) / (pixels - 1);
+      }
       input.zeroFraction = share * k >= 1 ? output.zeroFraction : 1 - share * k;
       return {
         input,
@@ -137,6 +141,11 @@ export const poolRule: AnalyticRule<null> = {
     input.q = output.q * share;
     input.shared = (output.shared ?? 0) * share * share;
     input.positionCorrelation = positionCorrelation;
+    // routing keeps each sample's sum over pixels: the pairs of two samples sum to what the output's do, P_out·ρ_sample +
+    // P_out(P_out − 1)·ρ_cross, of which one position of two samples now holds share·ρ_sample per pixel
+    if (output.crossCorrelation !== undefined && pixelsIn > 1) {
+      input.crossCorrelation = (sampleCorrelationOf(output) * (1 - share) + (pixelsOut - 1) * output.crossCorrelation) / (pixelsIn - 1);
+    }
     input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
     input.windowMaximum = k;
     return {

@@ -7,7 +7,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
+import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -67,6 +67,9 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       shared: (output.shared ?? 0) + (g.shared ?? 0),
     };
     if (q > 0) input.positionCorrelation = (positionCorrelationOf(output) * output.q + positionCorrelationOf(g) * g.q) / q;
+    if (q > 0 && (output.crossCorrelation !== undefined || g.crossCorrelation !== undefined)) {
+      input.crossCorrelation = (crossCorrelationOf(output) * output.q + crossCorrelationOf(g) * g.q) / q;
+    }
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
       input,
