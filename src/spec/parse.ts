@@ -84,7 +84,9 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
         message:
           error.code === "MULTIPLE_DOCS"
             ? "yaml: a spec is one document, and this file has more than one (a second '---' line)"
-            : `yaml: ${yamlMessage(error.message)}`,
+            : /maximum call stack size exceeded/i.test(error.message)
+              ? "yaml: the document nests too deeply to read here (a spec needs a few levels of lists and mappings)"
+              : `yaml: ${yamlMessage(error.message)}`,
       };
       return error.code === "DUPLICATE_KEY" ? { ...issue, ...duplicateKey(doc, counter, error.pos[0]) } : issue;
     });

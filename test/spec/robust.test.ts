@@ -102,3 +102,17 @@ describe("parseSpec on a merge key with non-map sources", () => {
     expect(result.issues[0]!.message).toMatch(/^yaml: merge sources must be maps/);
   });
 });
+
+describe("parseSpec on a document nested beyond the reader's stack", () => {
+  // 100,000 nested flow sequences: the yaml library stops at its call stack (code RESOURCE_EXHAUSTION); the issue says
+  // what is wrong in words, not as JavaScript's "maximum call stack size exceeded"
+  it("names the nesting, at a position in the first line", () => {
+    const depth = 100_000;
+    const result = parseSpec(`input: ${"[".repeat(depth)}${"]".repeat(depth)}\n`, "deep.yaml");
+    expect(result.ok).toBe(false);
+    if (result.ok) return;
+    expect(result.issues[0]!.message).toBe("yaml: the document nests too deeply to read here (a spec needs a few levels of lists and mappings)");
+    expect(result.issues[0]!.line).toBe(1);
+    expect(result.issues[0]!.column).toBeGreaterThan(8);
+  });
+});
