@@ -4,7 +4,7 @@
  * fields read through a Uint32Array view of the data, lookup tables for the 8- and 16-bit codes.
  */
 import type { Format } from "./model.js";
-import { binadeOf, decode, encodeRounded, formatTables, nanCode, roundDetailed, roundTo, type RoundOptions } from "./round.js";
+import { binadeOf, checkFormatRecord, decode, encodeRounded, formatTables, nanCode, roundDetailed, roundTo, type RoundOptions } from "./round.js";
 
 /**
  * Typed arrays of values the kernels accept.
@@ -44,6 +44,7 @@ function overflowValue(format: Format, options: RoundOptions | undefined): numbe
  * @example roundArrayInPlace(FORMATS.bfloat16, Float64Array.of(1 / 3))[0] // => 0.333984375
  */
 export function roundArrayInPlace<T extends FloatArray>(format: Format, data: T, options?: RoundOptions): T {
+  checkFormatRecord(format);
   return roundInto(format, data, data, options);
 }
 
@@ -53,6 +54,7 @@ export function roundArrayInPlace<T extends FloatArray>(format: Format, data: T,
  * @example roundArray(FORMATS.binary16, Float64Array.of(65519, 65520)) // => Float64Array [65504, Infinity]
  */
 export function roundArray<T extends FloatArray, U extends FloatArray = T>(format: Format, source: T, options?: RoundOptions, target?: U): U {
+  checkFormatRecord(format);
   const out = (target ?? (source instanceof Float64Array ? new Float64Array(source.length) : new Float32Array(source.length))) as U;
   if (out.length < source.length) throw new RangeError(`target holds ${out.length} values; ${source.length} given`);
   return roundInto(format, source, out, options);
@@ -190,6 +192,7 @@ export function emptyClassCounts(): ClassCounts {
  * @example countClasses(FORMATS.binary16, Float64Array.of(0, 1e-8, 1, 7e4)).flushed // => 1
  */
 export function countClasses(format: Format, data: FloatArray, options?: RoundOptions, into?: ClassCounts): ClassCounts {
+  checkFormatRecord(format);
   const counts = into ?? emptyClassCounts();
   const mode = options?.mode ?? "nearest-even";
   if (mode !== "nearest-even" || !LITTLE_ENDIAN) countGeneric(format, data, options, counts);
@@ -437,6 +440,7 @@ const decodeTables32 = new WeakMap<Format, Float32Array>();
 export function decodeTable(format: Format): Float64Array {
   let table = decodeTables64.get(format);
   if (table === undefined) {
+    checkFormatRecord(format);
     if (format.bits > 16) throw new RangeError(`${format.name} codes are ${format.bits} bits; a decode table needs 16 or fewer`);
     const size = 2 ** format.bits;
     table = new Float64Array(size);
@@ -468,6 +472,7 @@ function checkCodeArray(format: Format, codes: CodeArray): void {
  * @example decodeArray(FORMATS.e4m3, Uint8Array.of(0x7e, 0x01)) // => Float32Array [448, 0.001953125]
  */
 export function decodeArray<T extends FloatArray = Float32Array>(format: Format, codes: CodeArray, target?: T): T {
+  checkFormatRecord(format);
   checkCodeArray(format, codes);
   const out = (target ?? new Float32Array(codes.length)) as T;
   if (out.length < codes.length) throw new RangeError(`target holds ${out.length} values; ${codes.length} codes given`);
@@ -492,6 +497,7 @@ const ENCODE_BLOCK_WORDS = new Uint32Array(ENCODE_BLOCK.buffer);
  * @example encodeArray(FORMATS.binary16, Float64Array.of(1, 65504)) // => Uint16Array [0x3c00, 0x7bff]
  */
 export function encodeArray<C extends CodeArray = CodeArray>(format: Format, data: FloatArray, options?: RoundOptions, codes?: C): C {
+  checkFormatRecord(format);
   if (format.bits !== 16 && format.bits !== 8) {
     throw new RangeError(`${format.name} codes are ${format.bits} bits; encodeArray handles 16- and 8-bit formats`);
   }

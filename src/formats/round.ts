@@ -94,12 +94,24 @@ export interface FormatTables {
 const tableCache = new WeakMap<Format, FormatTables>();
 
 /**
+ * A JavaScript caller may pass a format's name where its record belongs (`roundTo("binary16", x)`); say so instead of
+ * failing deep inside with "Invalid value used as weak map key". Checked when a format's tables are first built.
+ */
+export function checkFormatRecord(format: unknown): asserts format is Format {
+  if (typeof format !== "object" || format === null || typeof (format as Partial<Format>).precision !== "number") {
+    const hint = typeof format === "string" ? ` (the record of a name is FORMATS[${JSON.stringify(format)}], or getFormat(name))` : "";
+    throw new TypeError(`expected a format record such as FORMATS.binary16, got ${typeof format === "string" ? JSON.stringify(format) : String(format)}${hint}`);
+  }
+}
+
+/**
  * The kernel tables of a format (built on first use, then cached).
  * @example formatTables(FORMATS.bfloat16).magic64[1023] // => 1.5 * 2 ** 45 (spacing 2^-7 at 1)
  */
 export function formatTables(format: Format): FormatTables {
   let tables = tableCache.get(format);
   if (tables === undefined) {
+    checkFormatRecord(format);
     tables = buildTables(format);
     tableCache.set(format, tables);
   }
