@@ -48,6 +48,7 @@ function byPosition(a: SpecIssue, b: SpecIssue): number {
  */
 export function parseSpec(text: string, source: string): SpecResult {
   if (typeof text !== "string") throw new TypeError(`parseSpec needs the text of a spec, got ${typeof text}`);
+  if (typeof source !== "string") throw new TypeError(`parseSpec needs the file name the text comes from, for messages, got ${typeof source}`);
   // most specs are plain YAML: read them fast and build the positioned document only when a position is asked
   // for; a spec with any problem goes the full way, so its issues are exactly those of the yaml library's path
   const plain = readPlainYaml(text);
@@ -240,9 +241,10 @@ async function isFolder(path: string): Promise<boolean> {
 
 /**
  * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
- * file: that too comes back as an issue.
+ * file: that too comes back as an issue; a path that is not a string is a TypeError.
  */
 export async function loadSpec(path: string): Promise<SpecResult> {
+  if (typeof path !== "string") throw new TypeError(`loadSpec needs the path of a spec file, got ${path === null ? "null" : typeof path}`);
   // a folder given where a spec is expected: say so, not that it lacks an extension
   if (await isFolder(path)) return wholeFile(path, FOLDER_MESSAGE);
   if (!/\.(ya?ml|json)$/i.test(path)) {

@@ -432,3 +432,13 @@ describe("parseSpec(text, source): the name __proto__", () => {
     expect(!result.ok && result.issues.map(formatSpecIssue)).toEqual(["p.yaml:7:23: measured.names.__proto__: must not be empty"]);
   });
 });
+
+describe("bad arguments (README, Library API: library functions throw TypeError for bad arguments)", () => {
+  it("loadSpec refuses a path that is not a string, instead of an issue whose file is a number", async () => {
+    await expect(loadSpec(123 as unknown as string)).rejects.toThrow(new TypeError("loadSpec needs the path of a spec file, got number"));
+    await expect(loadSpec(undefined as unknown as string)).rejects.toThrow(TypeError);
+  });
+  it("parseSpec refuses a source that is not a string", () => {
+    expect(() => parseSpec("input: { features: 1 }\n", undefined as unknown as string)).toThrow(TypeError);
+  });
+});
