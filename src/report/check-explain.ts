@@ -133,7 +133,12 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     }
   }
   if (tensor.statistics.factor !== 1) {
-    out += `  The check multiplies it by the loss scale ${formatValue(tensor.statistics.factor)} before judging it.\n`;
+    // where the scale came from, in the words of the check's loss-scale line (a power of two written as one)
+    const factor = tensor.statistics.factor;
+    const log2 = Math.log2(factor);
+    const value = Number.isInteger(log2) ? `2^${log2} = ${formatValue(factor)}` : formatValue(factor);
+    const origin = result.lossScale.value !== factor ? "" : { recommended: " (the recommended pick; the plan gives none)", plan: " (from the plan)", option: " (from the options)", none: "" }[result.lossScale.origin];
+    out += wrap(`The check multiplies it by the loss scale ${value}${origin} before judging it.`, width, "  ", "  ");
   }
 
   out += "\n" + style.role("strong", "Risk") + "\n";

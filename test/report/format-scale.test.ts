@@ -63,7 +63,7 @@ describe("terminal text", () => {
   it("explain says when a format was judged at another loss scale than the tensor's numbers", () => {
     const tensor = both.tensors.find((t) => t.role === "weight-gradient")!;
     const text = renderExplainText(both, tensor, { width: 400 });
-    expect(text).toContain(`The check multiplies it by the loss scale ${2 ** e5m2Pick} before judging it.`);
+    expect(text).toContain(`The check multiplies it by the loss scale 2^${e5m2Pick} = ${2 ** e5m2Pick} (the recommended pick; the plan gives none) before judging it.`);
     expect(text).toMatch(/\n {2}bfloat16 \(at loss scale 1\): /);
     expect(text).toMatch(/\n {2}e5m2: /);
   });
