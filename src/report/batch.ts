@@ -5,7 +5,7 @@
 import { FORMAT_NAMES } from "../formats/names.js";
 import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
 import { renderCsv, type CsvField } from "./csv.js";
-import { escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
+import { controlEscape, escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
 import { lossScaleCells } from "./loss-scale.js";
 import { formatBinades, formatCompactCount, formatPercent, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -126,7 +126,7 @@ const CONTROL = /[\u0000-\u001f\u007f-\u009f]/g;
  * command (ECMA-48 §5.3); each is shown as its JSON escape instead (`\n`, `\u001b`).
  */
 function visible(text: string): string {
-  return text.replace(CONTROL, (c) => JSON.stringify(c).slice(1, -1));
+  return text.replace(CONTROL, controlEscape);
 }
 
 function errorLine(row: Extract<BatchRow, { status: "error" }>): string {

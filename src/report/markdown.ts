@@ -17,20 +17,31 @@ export interface MarkdownColumn {
 // need no escape once "[" and "]" have one (a link or image needs both).
 const MARKDOWN_PUNCTUATION = /[\\`*_[\]#+|~]/g;
 
+/** A control character as its escape: `\n`, `\t` as JSON writes them, any other as `\u001b` (JSON leaves C1 and DEL raw). */
+export function controlEscape(c: string): string {
+  const json = JSON.stringify(c).slice(1, -1);
+  return json !== c ? json : `\\u${c.charCodeAt(0).toString(16).padStart(4, "0")}`;
+}
+
 /**
  * Escape plain text so GitHub Markdown shows it literally, inside a table cell or a paragraph:
  * punctuation gets a backslash (CommonMark §2.4), `& < >` become entities (so no raw HTML),
- * line breaks become `<br>` (a table row must stay on one line).
+ * line breaks become `<br>` (a table row must stay on one line), other control characters their JSON escapes.
  *
  * @example escapeMarkdown("a|b <i>") // => "a\\|b &lt;i&gt;"
  */
 export function escapeMarkdown(text: string): string {
-  return text
-    .replaceAll("&", "&amp;")
-    .replaceAll("<", "&lt;")
-    .replaceAll(">", "&gt;")
-    .replace(MARKDOWN_PUNCTUATION, (c) => "\\" + c)
-    .replace(/\r\n|\r|\n/g, "<br>");
+  return (
+    text
+      // other control characters than line breaks (a file name may hold ESC) shown as their JSON escape (\u001b): Markdown
+      // printed to a terminal must not carry an escape sequence (ECMA-48 §5.3); the backslash is escaped below
+      .replace(/[\u0000-\u0009\u000b\u000c\u000e-\u001f\u007f-\u009f]/g, controlEscape)
+      .replaceAll("&", "&amp;")
+      .replaceAll("<", "&lt;")
+      .replaceAll(">", "&gt;")
+      .replace(MARKDOWN_PUNCTUATION, (c) => "\\" + c)
+      .replace(/\r\n|\r|\n/g, "<br>")
+  );
 }
 
 /** Inline code for plain text; a backtick inside is shown as itself (longer fence, CommonMark §6.1). */

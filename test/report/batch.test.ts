@@ -102,13 +102,13 @@ describe("batchExitCode (README: 0 all fit, 1 some at risk or failing, 2 input e
 describe("renderBatchText", () => {
   test("a file name with a line break or ESC keeps one table line per row and sends no control character to the terminal (ECMA-48 §5.3: ESC starts a command)", () => {
     const odd: BatchRow[] = [
-      { ...ROWS[0]!, file: "sweep/two\nlines.yaml" } as BatchRow,
+      { ...ROWS[0]!, file: "sweep/two\nlines\u009b.yaml" } as BatchRow,
       { index: 1, file: "sweep/\u001b[2Jclear.yaml", variant: null, status: "error", error: { kind: "input", message: "sweep/\u001b[2Jclear.yaml:1:1: the spec is empty: it needs at least input, training and layers", position: { file: "sweep/\u001b[2Jclear.yaml", line: 1, column: 1 } } },
     ];
     const text = renderBatchText(odd);
     expect(text).not.toMatch(/[\u0000-\u0009\u000b-\u001f\u007f-\u009f]/);
     const lines = text.split("\n");
-    expect(lines.filter((line) => /^\d+ {2}/.test(line)).map((line) => line.split(/ {2,}/)[1])).toEqual(["sweep/two\\nlines.yaml", "sweep/\\u001b[2Jclear.yaml"]);
+    expect(lines.filter((line) => /^\d+ {2}/.test(line)).map((line) => line.split(/ {2,}/)[1])).toEqual(["sweep/two\\nlines\\u009b.yaml", "sweep/\\u001b[2Jclear.yaml"]);
     expect(lines).toContain("  sweep/\\u001b[2Jclear.yaml:1:1: the spec is empty: it needs at least input, training and layers");
   });
 

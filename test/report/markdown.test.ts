@@ -12,6 +12,11 @@ describe("escapeMarkdown", () => {
   test("turns line breaks into <br> so a row stays on one line", () => {
     expect(escapeMarkdown("one\ntwo\r\nthree")).toBe("one<br>two<br>three");
   });
+  test("shows other control characters as their escapes, so Markdown printed to a terminal sends no ESC (ECMA-48 §5.3)", () => {
+    // the backslash of \u001b is itself escaped (CommonMark §2.4), so GitHub shows the six characters
+    expect(escapeMarkdown("sweep/\u001b[2Jclear\t.yaml")).toBe("sweep/\\\\u001b\\[2Jclear\\\\t.yaml");
+    expect(escapeMarkdown("a\u0007b\u009bc")).not.toMatch(/[\u0000-\u001f\u007f-\u009f]/);
+  });
   test("shows HTML as text", () => {
     expect(escapeMarkdown("<script>alert(1)</script>&")).toBe("&lt;script&gt;alert(1)&lt;/script&gt;&amp;");
   });
