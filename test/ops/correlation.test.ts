@@ -12,9 +12,10 @@ import { attentionRowSums, attentionRule } from "../../src/ops/attention/analyti
 import { correlatedSum, meanPairCorrelation } from "../../src/ops/common.js";
 import { normRule } from "../../src/ops/norm/analytic.js";
 import { poolRule } from "../../src/ops/pool/analytic.js";
+import { dropoutRule } from "../../src/ops/dropout/analytic.js";
 import type { Gradient, OpContext, Signal } from "../../src/ops/types.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
-import { act, attention, conv, crossEntropy, dense, features, flatten, he, image, makeSpec, norm, pool } from "../magnitude/build-spec.js";
+import { act, attention, conv, crossEntropy, dense, dropout, features, flatten, he, image, makeSpec, norm, pool } from "../magnitude/build-spec.js";
 
 function layerOf(spec: NetworkSpec, name: string): GraphLayer {
   const built = buildGraph(spec);
@@ -158,5 +159,49 @@ describe("ReLU units off for the whole batch give exact zeros in the weight grad
     // the ledger says it in words
     const ledger = p.tensors.find((t) => t.id === "d2/weight-gradient:bias")!.ledger;
     expect(ledger.some((e) => e.rule.startsWith("weight gradient: sum of 16 gradients") && e.rule.includes("1 + (N − 1)·ρ̄"))).toBe(true);
+  });
+});
+
+// Pairs of two samples: routing (max-pool) and copying (average-pool) keep each sample's sum over pixels, so the sum
+// over every pair of two samples' pixels keeps its expectation, P·ρ_sample·q + P(P − 1)·ρ_cross·q on either side (the
+// variance of a sum, common practice); the third correlation is carried only where set (a flatten's gradient sets 0).
+describe("two samples at two pixels through the pools", () => {
+  const twoSamplePairs = (g: Gradient, pixels: number): number => {
+    const rs = (g.shared ?? 0) / g.q;
+    return pixels * rs * g.q + pixels * (pixels - 1) * (g.crossCorrelation ?? rs) * g.q;
+  };
+  for (const family of ["max-pool", "average-pool"] as const) {
+    test(`${family}: the pairs of two samples keep their sum`, () => {
+      const spec = makeSpec([conv("c", 4), pool("p", family, 2), flatten("f"), dense("out", 3)], { input: image(2, 8, 8), loss: crossEntropy(3) });
+      const layer = layerOf(spec, "p");
+      for (const cross of [0, 0.02, 0.1]) {
+        const output: Gradient = { q: 2, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: 0.2, positionCorrelation: 0.3, crossCorrelation: cross };
+        const input = poolRule.backward(context(4), layer, null, output, {}).input as Gradient;
+        expect(input.crossCorrelation).toBeDefined();
+        expect(twoSamplePairs(input, 64)).toBeCloseTo(twoSamplePairs(output, 16), 10);
+      }
+      // unset, it stays unset: the sample correlation stands in, as before
+      const plain = poolRule.backward(context(4), layer, null, { q: 2, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: 0.2 }, {}).input as Gradient;
+      expect(plain.crossCorrelation).toBeUndefined();
+    });
+  }
+});
+
+// Inverted dropout multiplies by independent masks m/keep with E[m] = keep (Srivastava et al. 2014): two elements keep
+// E[x·x'] while E[x²] grows by 1/keep, so a correlation relative to E[x²] shrinks by keep
+describe("dropout: correlations relative to q shrink by the keep rate", () => {
+  const spec = makeSpec([dense("d", 8), dropout("drop", 0.25), dense("out", 3)], { input: features(8, 16), loss: crossEntropy(3) });
+  const layer = layerOf(spec, "drop");
+  test("forward: two positions keep their product", () => {
+    const input = signal(2, 0.4);
+    const output = dropoutRule.forward(context(4), layer, input).output;
+    expect(output.q * (output.positionCorrelation ?? 0)).toBeCloseTo(input.q * 0.4, 12);
+  });
+  test("backward: two positions, and two samples at two positions, keep their products", () => {
+    const output: Gradient = { q: 2, zeroFraction: 0, shape: "gaussian", logVar: 0, shared: 0.2, positionCorrelation: 0.4, crossCorrelation: 0.05 };
+    const input = dropoutRule.backward(context(4), layer, null, output, {}).input as Gradient;
+    expect(input.q * (input.positionCorrelation ?? 0)).toBeCloseTo(output.q * 0.4, 12);
+    expect(input.q * (input.crossCorrelation ?? 0)).toBeCloseTo(output.q * 0.05, 12);
+    expect(input.shared).toBe(0.2);
   });
 });

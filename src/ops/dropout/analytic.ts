@@ -17,6 +17,9 @@ export const dropoutRule: AnalyticRule<null> = {
     const ratio = keep > 0 ? 1 / keep : 0;
     const output: Signal = { ...input, q: input.q * ratio, zeroFraction: rate + keep * input.zeroFraction };
     if (input.bound !== undefined) output.bound = input.bound * ratio;
+    // two elements keep their product in expectation (independent masks: E[m·m']/keep² = 1) while q grows by 1/keep,
+    // so a correlation given relative to q shrinks by keep (the absolute `shared` and `mean` stay as they are)
+    if (input.positionCorrelation !== undefined) output.positionCorrelation = input.positionCorrelation * keep;
     return {
       output,
       factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
@@ -31,6 +34,9 @@ export const dropoutRule: AnalyticRule<null> = {
     const keep = 1 - rate;
     const ratio = keep > 0 ? 1 / keep : 0;
     const input: Gradient = { ...output, q: output.q * ratio, zeroFraction: rate + keep * output.zeroFraction };
+    // as forward: pairs keep their product, q grows by 1/keep
+    if (output.positionCorrelation !== undefined) input.positionCorrelation = output.positionCorrelation * keep;
+    if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation * keep;
     return { input, factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };
