@@ -194,7 +194,7 @@ describe("dropout: correlations relative to q shrink by the keep rate", () => {
   const layer = layerOf(spec, "drop");
   test("forward: two positions keep their product", () => {
     const input = signal(2, 0.4);
-    const output = dropoutRule.forward(context(4), layer, input).output;
+    const output = dropoutRule.forward(context(4), layer, input, {}).output;
     expect(output.q * (output.positionCorrelation ?? 0)).toBeCloseTo(input.q * 0.4, 12);
   });
   test("backward: two positions, and two samples at two positions, keep their products", () => {
