@@ -239,6 +239,15 @@ async function isFolder(path: string): Promise<boolean> {
   }
 }
 
+async function exists(path: string): Promise<boolean> {
+  try {
+    await stat(path);
+    return true;
+  } catch {
+    return false;
+  }
+}
+
 /**
  * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
  * file: that too comes back as an issue; a path that is not a string is a TypeError.
@@ -249,6 +258,8 @@ export async function loadSpec(path: string): Promise<SpecResult> {
   if (await isFolder(path)) return wholeFile(path, FOLDER_MESSAGE);
   if (!/\.(ya?ml|json)$/i.test(path)) {
     const extension = /\.[^./\\]*$/.exec(path)?.[0];
+    // a path with no extension that is not there at all is more likely a mistyped folder than a spec without extension
+    if (extension === undefined && !(await exists(path))) return wholeFile(path, "no such file or folder");
     return wholeFile(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
   }
   try {

@@ -353,6 +353,9 @@ describe("loadSpec(path)", () => {
       ok: false,
       issues: [{ file: "spec.txt", line: 0, column: 0, path: "", message: 'unsupported extension ".txt": a spec is a .yaml, .yml or .json file' }],
     });
+    // a missing path without an extension is most likely a mistyped folder: not "no file extension"
+    const typo = await loadSpec(`${valid}no-such-folder`);
+    expect(!typo.ok && typo.issues.map(formatSpecIssue)).toEqual([`${valid}no-such-folder: no such file or folder`]);
     const missing = await loadSpec(`${valid}no-such-spec.yaml`);
     expect(!missing.ok && missing.issues.map(formatSpecIssue)).toEqual([`${valid}no-such-spec.yaml: no such file`]);
     const folder = await loadSpec(`${valid}.yaml`);
