@@ -504,7 +504,12 @@ export function renderHtmlReport(model: ReportModel): string {
     `<header><p class="kicker">headroom report</p><h1>${e(model.title)}</h1>`,
     model.description ? `<p class="description">${e(model.description)}</p>` : "",
     `<dl class="facts"><dt>spec</dt><dd><code>${e(model.source)}</code></dd><dt>precision plan</dt><dd>${e(model.plan)}</dd>`,
-    `<dt>tensors</dt><dd>${model.tensors.length}</dd></dl></header>`,
+    `<dt>tensors</dt><dd>${model.tensors.length}</dd></dl>`,
+    // recorded rows the check could not use: the user gave them, so the page says so before any verdict
+    model.unusedStatistics !== undefined && model.unusedStatistics.length > 0
+      ? `<p class="description">Recorded statistics not used:</p><ul>${model.unusedStatistics.map((u) => `<li>${e(u)}</li>`).join("")}</ul>`
+      : "",
+    `</header>`,
     `<section class="verdict ${verdictClass(model.verdict)}" aria-labelledby="verdict"><h2 id="verdict">Verdict</h2>`,
     `<p class="verdict-word">${e(capitalised(verdictWords(model.verdict)))}</p>${reasons}<p class="caveat">${e(CAVEAT)}</p></section>`,
     `<section aria-labelledby="formats"><h2 id="formats">${model.formats.every((f) => f.planned !== false) ? "Formats in the plan" : "Formats judged"}</h2>${formatsTable(model)}</section>`,

@@ -77,6 +77,12 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   if (applied.origin === "plan" || applied.origin === "option") {
     out += `\nGradients judged at the loss scale ${formatValue(applied.value)} (from ${applied.origin === "plan" ? "the plan" : "the command line"}).\n`;
   }
+  // recorded rows the check could not use: the user gave them, so a CI comment says so
+  const unused = result.unusedStatistics ?? [];
+  if (unused.length > 0) {
+    out += `\nRecorded statistics not used:\n`;
+    for (const u of unused) out += `- ${escapeMarkdown(u.sentence)}\n`;
+  }
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
 }

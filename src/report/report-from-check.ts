@@ -157,6 +157,7 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
       sentence: f.sentence,
     })),
     assumptions: [...result.assumptions, result.caution],
+    ...(result.unusedStatistics !== undefined && result.unusedStatistics.length > 0 ? { unusedStatistics: result.unusedStatistics.map((u) => u.sentence) } : {}),
     version: options.version,
   };
 }

@@ -113,6 +113,8 @@ export interface ReportModel {
   findings: ReportFinding[];
   /** the assumptions the prediction made, one sentence each */
   assumptions: string[];
+  /** rows of the spec's recorded statistics the check could not use, one sentence each (absent: all used, or none) */
+  unusedStatistics?: string[];
   /** the tool's version, printed in the footer */
   version: string;
 }

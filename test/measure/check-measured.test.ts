@@ -2,7 +2,7 @@
  * `headroom check` on a spec whose `measured` section names a weights file and a recorded-statistics file
  * (the built binary, as users run it). Weight files come from the independent writer in writers.ts.
  */
-import { writeFileSync } from "node:fs";
+import { readFileSync, writeFileSync } from "node:fs";
 import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
 import { checkFile } from "../../src/check.js";
@@ -57,6 +57,13 @@ describe("check with measured data", () => {
     expect(text).toContain(
       "recorded statistics not used: fc1 (weight-gradient, line 3) fits 2 tensors (fc1/weight-gradient, fc1/weight-gradient:bias): name one by its id; fc9 (activation, line 4) matches no tensor.",
     );
+    // Markdown (for CI comments) and the HTML report say so too
+    const md = runCli(["check", path, "--md"]).stdout;
+    expect(md).toContain("Recorded statistics not used:\n- fc1 (weight-gradient, line 3) fits 2 tensors");
+    expect(md).toContain("- fc9 (activation, line 4) matches no tensor\n");
+    const html = join(files.dir, "unused.html");
+    expect(runCli(["report", path, "-o", html]).status).not.toBe(2);
+    expect(readFileSync(html, "utf8")).toContain("<li>fc9 (activation, line 4) matches no tensor</li>");
     // every row used: no such field
     const used = join(files.dir, "used-rows.yaml");
     writeFileSync(used, spec("measured:\n  statistics: stats.csv\n"));
