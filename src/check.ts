@@ -92,6 +92,7 @@ const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
 export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements | MeasuredNetwork): CheckAnswer {
+  assertSpec(spec, "check");
   const plan = choosePlan(spec, options.plan);
   // bad options (a loss scale, a format name) fail here, before the graph, the prediction and the window searches
   const formats = checkedFormats(plan, options);
@@ -172,6 +173,14 @@ function weighedAnswers(
     return withWeighedPick(answer, found.pickLog2, found.weighing);
   });
   return moved || out.some((a, i) => a !== answers[i]) ? out : answers;
+}
+
+// a library caller passing something other than a loaded spec gets a TypeError naming it, not a property read deep inside
+function assertSpec(spec: unknown, caller: string): asserts spec is NetworkSpec {
+  const loaded = spec !== null && typeof spec === "object" && "precision" in spec && "layers" in spec && "training" in spec;
+  if (!loaded) {
+    throw new TypeError(`${caller} needs a network spec as loadSpec or parseSpec give it (its .spec), got ${spec === null ? "null" : Array.isArray(spec) ? "an array" : typeof spec}`);
+  }
 }
 
 /** The items of `CheckAnswer.lossScales`, from the judgement and the answers as told. */
@@ -292,6 +301,7 @@ export interface MeasuredNetwork {
  * to report and what {@link check} needs, so that reporting them and checking cost one graph build and one matching.
  */
 export function measuredNetwork(spec: NetworkSpec, measurements: Measurements | undefined): MeasuredNetwork {
+  assertSpec(spec, "measuredNetwork");
   const built = buildGraph(spec);
   const weights = measurements?.weights;
   const calibration = built.ok && weights !== undefined ? calibrateGraph(built.graph, weights, spec.measured?.names ?? {}) : undefined;
