@@ -71,10 +71,10 @@ function fewer(a: ScaledFindings, b: ScaledFindings): boolean {
 }
 
 /**
- * The pick of a window weighed against the findings that move with the scale. `atCentre` is what the window's own pick
- * leaves, with the tensors and operation layers that have them (from the check's judgement when it was judged there; else it is
- * judged here). The other exponents of the
- * window are judged on the gradients and the scaled operations alone, and the pick is the one with
+ * The pick of a window weighed against the findings that move with the scale. `atCentre` is what the window's own
+ * pick leaves, with the tensors and operation layers that have them (from the check's judgement when it was judged
+ * there; else it is judged here). The other exponents of the window are judged on the gradients and the scaled
+ * operations alone, and the pick is the one with
  *   1. no more findings of the overflow side than the centre (overflow under a static scale gives inf or NaN and a
  *      lost step; flushing costs precision, so the centre's margin below overflow is not traded for it), then
  *   2. the fewest failing findings, then the fewest at risk, then
