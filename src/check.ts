@@ -107,11 +107,9 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   const judgeAtPicks = () => judgePrediction(planned, prediction, answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
   let judged = judgeAtPicks();
   const weighed = weighedAnswers(planned, prediction, answers, judged, options);
-  if (weighed !== answers) {
-    answers = weighed;
-    // a pick moved: the gradients are judged again at it (a given scale is judged as it was)
-    if (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended")) judged = judgeAtPicks();
-  }
+  answers = weighed.answers;
+  // a pick moved: the gradients are judged again at it (a given scale is judged as it was)
+  if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) judged = judgeAtPicks();
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
@@ -148,9 +146,9 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
 }
 
 /**
- * The answers with each window's pick weighed against the findings it leaves (src/scale/pick.ts); the same array when
- * no pick moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale
- * has its centre judged apart.
+ * The answers with each window's pick weighed against the findings it leaves (src/scale/pick.ts), and whether a pick
+ * moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale has its
+ * centre judged apart.
  */
 function weighedAnswers(
   spec: NetworkSpec,
@@ -158,7 +156,7 @@ function weighedAnswers(
   answers: LossScaleAnswer[],
   judged: CheckResult,
   options: CheckAnswerOptions,
-): LossScaleAnswer[] {
+): { answers: LossScaleAnswer[]; moved: boolean } {
   let moved = false;
   const out = answers.map((answer) => {
     const pick = answer.window.pickLog2;
@@ -172,7 +170,7 @@ function weighedAnswers(
     if (found.pickLog2 !== pick) moved = true;
     return withWeighedPick(answer, found.pickLog2, found.weighing);
   });
-  return moved || out.some((a, i) => a !== answers[i]) ? out : answers;
+  return { answers: out, moved };
 }
 
 // a library caller passing something other than a loaded spec gets a TypeError naming it, not a property read deep inside
