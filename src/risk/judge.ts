@@ -6,6 +6,7 @@ import { blockScaledRiskCached } from "./blocks.js";
 import { FORMATS, type Format } from "../formats/index.js";
 import { FORMAT_NAMES, isFormatName, type FormatName } from "../formats/names.js";
 import type {
+  HazardKind,
   HazardSite,
   LedgerEntry,
   MagnitudeProfile,
@@ -19,7 +20,7 @@ import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
 import { byRms, hasSite, weightGradientsOf } from "./second-moments.js";
-import { LOSS_SCALED_ROLES, lossScaleFactor, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
+import { LOSS_SCALED_ROLES, lossScaleFactor, overflowAtRiskThreshold, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -340,11 +341,15 @@ export interface ScaledSubjects {
   weightGradients: readonly TensorPrediction[];
 }
 
+/** Whether an operation site's numbers move with the loss scale: the scaled loss, and gradients summed across workers or steps. */
+export function isScaledSite(kind: HazardKind): boolean {
+  return kind === "loss-value" || kind === "gradient-sum";
+}
+
 export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): ScaledSubjects {
-  const scaledSite = (site: HazardSite) => site.kind === "loss-value" || site.kind === "gradient-sum";
   const sites: ScaledSubjects["sites"][number][] = [];
-  for (const site of prediction.hazards) if (scaledSite(site)) sites.push({ site, origin: "prediction" });
-  for (const site of trainingSites(spec, prediction)) if (scaledSite(site)) sites.push({ site, origin: "training setup" });
+  for (const site of prediction.hazards) if (isScaledSite(site.kind)) sites.push({ site, origin: "prediction" });
+  for (const site of trainingSites(spec, prediction)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
   return { spec, tensors: prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role)), sites, weightGradients: weightGradientsOf(prediction) };
 }
 
@@ -838,7 +843,7 @@ function checkAssumptions(
         ? "8-bit formats are judged without scale factors."
         : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (with per-block scaling, flushing and clipping follow the rule for blocks of 32 elements of Gaussian-like values)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.` +
             (plan.scaling === "tensor" && plan.overflow === "saturate"
-              ? ` The predicted max is the level passed once in ${plainNumber(1 / thresholds.maxQuantile)} steps, so a tensor's largest elements are clipped about that often by the scale rule itself; saturation counts as a finding only when it comes more often (above ${plainNumber(Math.max(thresholds.overflowAtRisk, thresholds.maxQuantile))} per step).`
+              ? ` The predicted max is the level passed once in ${plainNumber(1 / thresholds.maxQuantile)} steps, so a tensor's largest elements are clipped about that often by the scale rule itself; saturation counts as a finding only when it comes more often (above ${plainNumber(overflowAtRiskThreshold(thresholds, true))} per step).`
               : ""),
     );
   }

@@ -136,6 +136,16 @@ export function perTensorScaleLog2(predictedMax: number, maxFinite: number): num
   return Math.floor(Math.log2(maxFinite / predictedMax));
 }
 
+/**
+ * The per-step overflow risk above which a stored tensor is at risk. A per-tensor scale set from the level passed once
+ * in 1/maxQuantile steps has a saturating conversion clip the elements above it about that often: the scale rule at
+ * work (SCIENCE.md §3.4, "overflow a clipping event"), not a finding until saturation comes more often than the rule
+ * allows; overflow to infinity or NaN is judged as always.
+ */
+export function overflowAtRiskThreshold(t: Pick<RiskThresholds, "overflowAtRisk" | "maxQuantile">, scaledAndSaturating: boolean): number {
+  return scaledAndSaturating ? Math.max(t.overflowAtRisk, t.maxQuantile) : t.overflowAtRisk;
+}
+
 /** Options of {@link tensorFormatRisk}. */
 export interface TensorRiskOptions {
   /** whether this format's verdict counts the tensor */
@@ -291,10 +301,7 @@ function tensorFindings(
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
   // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
   // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed
-  // a per-tensor scale set from the level passed once in 1/maxQuantile steps has a saturating conversion clip the
-  // elements above it about that often: the scale rule at work (SCIENCE.md §3.4, "overflow a clipping event"), not a
-  // finding until saturation comes more often than the rule allows; overflow to infinity or NaN is judged as always
-  const overflowAtRisk = options.perTensorScaling && limits.saturates ? Math.max(t.overflowAtRisk, t.maxQuantile) : t.overflowAtRisk;
+  const overflowAtRisk = overflowAtRiskThreshold(t, options.perTensorScaling && limits.saturates);
   const overflow = grade(worst.overflowRisk, overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
     const threshold = overflow === "fails" ? t.overflowFails : overflowAtRisk;

@@ -7,7 +7,7 @@
  */
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
-import { judgeScaled, LOSS_SCALED_ROLES, scaledSubjects, type CheckOptions, type CheckResult, type Finding, type FindingKind, type ScaledSubjects } from "../risk/index.js";
+import { isScaledSite, judgeScaled, LOSS_SCALED_ROLES, scaledSubjects, type CheckOptions, type CheckResult, type Finding, type FindingKind, type ScaledSubjects } from "../risk/index.js";
 import type { NetworkSpec } from "../spec/types.js";
 import type { ScaleWindow } from "./window.js";
 
@@ -28,9 +28,6 @@ export interface PickWeighing {
   atPick: ScaledFindings;
 }
 
-// the operations whose findings move with the loss scale: the scaled loss, and gradients summed across workers or
-// steps (src/risk/hazards.ts multiplies only these by the scale)
-const SCALED_HAZARD_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["loss-value-overflow", "gradient-sum-overflow", "gradient-sum-flush"]);
 const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow", "saturation", "little-headroom", "loss-value-overflow", "gradient-sum-overflow"]);
 
 /**
@@ -39,13 +36,21 @@ const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow
  * of the operations that have them.
  */
 export function scaledFindings(result: CheckResult, format: FormatName, subjects?: { tensors: Set<string>; sites: Set<string> }): ScaledFindings {
-  const gradients = new Set<string>();
-  for (const t of result.tensors) if (LOSS_SCALED_ROLES.includes(t.role)) gradients.add(t.id);
   const counted = none();
-  for (const f of result.formats.find((c) => c.format === format)?.findings ?? []) {
-    if (f.source === "tensor" ? gradients.has(f.subject) : SCALED_HAZARD_KINDS.has(f.kind)) {
+  for (const t of result.tensors) {
+    if (!LOSS_SCALED_ROLES.includes(t.role)) continue;
+    for (const risk of t.risks) {
+      if (risk.format !== format) continue;
+      for (const f of risk.findings) add(counted, f);
+      if (risk.findings.length > 0) subjects?.tensors.add(t.id);
+    }
+  }
+  for (const h of result.hazards) {
+    if (!isScaledSite(h.kind)) continue;
+    for (const f of h.findings) {
+      if (f.format !== format) continue;
       add(counted, f);
-      (f.source === "tensor" ? subjects?.tensors : subjects?.sites)?.add(f.subject);
+      subjects?.sites.add(h.layer);
     }
   }
   return counted;
