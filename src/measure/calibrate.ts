@@ -250,9 +250,7 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
 export interface MeasurementReport {
   /** tensor ids whose profiles are measured */
   measured: string[];
-  /** recorded statistics no tensor of the prediction matched */
-  unmatchedStatistics: RecordedStatistic[];
-  /** the same rows, each with the tensors its layer name and role fit when more than one does (none: no tensor) */
+  /** the recorded rows no tensor of the prediction took, each with the tensors it could mean when several fit */
   unusedStatistics: UnusedStatistic[];
 }
 
@@ -323,12 +321,10 @@ export function applyMeasurements(
       if (measure) replaced.set(tensor.id, { start: measuredProfile(measure, tensor.family.endsWith("norm") && tensor.id.endsWith(":gain")) });
     }
   }
-  const unmatchedStatistics: RecordedStatistic[] = [];
   const unusedStatistics: UnusedStatistic[] = [];
   for (const statistic of statistics) {
     const found = findTensor(prediction.tensors, statistic);
     if (found === undefined || Array.isArray(found)) {
-      unmatchedStatistics.push(statistic);
       const candidates = found ?? [];
       const head = `${statistic.tensor} (${statistic.role}, ${statistic.at})`;
       const sentence = candidates.length === 0 ? `${head} matches no tensor` : `${head} fits ${candidates.length} tensors (${candidates.join(", ")}): name one by its id`;
@@ -356,7 +352,7 @@ export function applyMeasurements(
       source: "measured",
     };
   });
-  const report: MeasurementReport = { measured: [...replaced.keys()], unmatchedStatistics, unusedStatistics };
+  const report: MeasurementReport = { measured: [...replaced.keys()], unusedStatistics };
   const notes = measurementNotes(calibration, statistics, statisticsFile, report);
   return { prediction: { ...prediction, tensors, assumptions: [...prediction.assumptions, ...notes] }, report };
 }
@@ -410,11 +406,11 @@ function measurementNotes(
     }
   }
   if (statistics.length > 0) {
-    const matched = statistics.length - report.unmatchedStatistics.length;
+    const matched = statistics.length - report.unusedStatistics.length;
     notes.push(
       `Recorded statistics${statisticsFile ? ` from ${statisticsFile}` : ""} replace ${matched} profile${matched === 1 ? "" : "s"}; tensors downstream of them keep their predictions.`,
     );
-    if (report.unmatchedStatistics.length > 0) {
+    if (report.unusedStatistics.length > 0) {
       notes.push(`${report.unusedStatistics.length} recorded row${report.unusedStatistics.length === 1 ? " is" : "s are"} not used: ${listed(report.unusedStatistics.map((u) => u.sentence))}.`);
     }
   }

@@ -14,7 +14,6 @@ import {
   parseRecordedStatistics,
   readWeightFiles,
   weightTensorId,
-  type RecordedStatistic,
 } from "../../src/measure/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -224,7 +223,7 @@ describe("recorded statistics", () => {
     // a max of 40 at rms 0.5 over many elements is far past a Gaussian's extreme: a log-normal tail
     const fc2 = out.tensors.find((t) => t.layer === "fc2" && t.role === "pre-activation")!;
     expect(fc2.start.shape).toBe("log-normal");
-    expect(report.unmatchedStatistics.map((u: RecordedStatistic) => u.tensor)).toEqual(["nowhere"]);
+    expect(report.unusedStatistics.map((u) => u.tensor)).toEqual(["nowhere"]);
     expect(out.tensors.filter((t) => t.source === "measured").length).toBe(2);
   });
 
