@@ -1,9 +1,9 @@
-import { check, CheckInputError, loadSpecMeasurements, measuredIssues, measuredNetwork } from "../check.js";
+import { check, CheckInputError } from "../check.js";
 import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
-import { loadSpecReporting, reportGraphIssues, reportMeasuredIssues } from "./load-spec.js";
+import { loadMeasuredNetwork, loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { parseLossScale } from "./loss-scale.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
@@ -43,10 +43,7 @@ export async function loadAndCheck(path: string, flags: JudgeFlags, extra: Check
   const loaded = await loadSpecReporting(path);
   if (loaded === undefined) return undefined;
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
-  const measurements = await loadSpecMeasurements(loaded.spec);
-  // the graph is built and the weights matched once, for the problems and the check
-  const network = measuredNetwork(loaded.spec, measurements);
-  reportMeasuredIssues(measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate));
+  const network = await loadMeasuredNetwork(loaded);
   try {
     return check(loaded.spec, options, network);
   } catch (error) {

@@ -1,8 +1,8 @@
-import { CheckInputError, loadSpecMeasurements, measuredIssues, measuredNetwork } from "../check.js";
+import { CheckInputError } from "../check.js";
 import { comparePlans } from "../compare.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import { loadSpecReporting, reportGraphIssues, reportMeasuredIssues } from "./load-spec.js";
+import { loadMeasuredNetwork, loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { stdoutStyle, textWidth } from "./terminal.js";
 
@@ -12,11 +12,8 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   if (loaded === undefined) return;
   const spec = loaded.spec;
   const plans: PrecisionPlan[] | undefined = flags.onlySpecPlans ? [spec.precision, ...spec.plans] : undefined;
-  // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does; the
-  // graph is built and the weights matched once for the problems and every plan's check
-  const measurements = await loadSpecMeasurements(spec);
-  const network = measuredNetwork(spec, measurements);
-  reportMeasuredIssues(measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate));
+  // the spec's measured data, read once and judged with in every plan, its problems reported as plain check does
+  const network = await loadMeasuredNetwork(loaded);
   let comparison;
   try {
     comparison = comparePlans(spec, { ...(plans ? { plans } : {}), measurements: network });

@@ -1,4 +1,5 @@
 /** Loading one spec file for a command, with its problems reported the way every command reports them. */
+import { loadSpecMeasurements, measuredIssues, measuredNetwork, type MeasuredNetwork } from "../check.js";
 import type { GraphIssue } from "../graph/index.js";
 import { formatSpecIssue, formatSpecPath, loadSpec, type SpecIssue, type SpecResult } from "../spec/index.js";
 import { EXIT, raiseExitCode } from "./errors.js";
@@ -30,4 +31,15 @@ export function reportGraphIssues(loaded: Extract<SpecResult, { ok: true }>, iss
 export function reportMeasuredIssues(issues: readonly SpecIssue[]): void {
   for (const issue of issues) process.stderr.write(formatSpecIssue(issue) + "\n");
   if (issues.length > 0) raiseExitCode(EXIT.inputError);
+}
+
+/**
+ * A loaded spec's measured data (its `measured` section) with its network built and the weights matched once, for the
+ * problems and the check: unreadable data, and weights the network cannot use, are reported by reportMeasuredIssues.
+ */
+export async function loadMeasuredNetwork(loaded: Extract<SpecResult, { ok: true }>): Promise<MeasuredNetwork> {
+  const measurements = await loadSpecMeasurements(loaded.spec);
+  const network = measuredNetwork(loaded.spec, measurements);
+  reportMeasuredIssues(measuredIssues([...(measurements?.problems ?? []), ...network.weightProblems], loaded.locate));
+  return network;
 }
