@@ -1,5 +1,6 @@
 /** YAML (or JSON) text in; a validated, normalized NetworkSpec out, or every problem of the file with its position. */
 import { readFile, stat } from "node:fs/promises";
+import type { Stats } from "node:fs";
 import type { Document, LineCounter } from "yaml";
 import { crossChecks } from "./checks.js";
 import { formatSpecPath, type SpecIssue, type SpecPosition } from "./issues.js";
@@ -231,40 +232,31 @@ function dedupe(issues: SpecIssue[]): SpecIssue[] {
 
 const FOLDER_MESSAGE = "a folder, not a spec file: a spec is one .yaml, .yml or .json file (headroom batch checks every spec in a folder)";
 
-async function isFolder(path: string): Promise<boolean> {
-  try {
-    return (await stat(path)).isDirectory();
-  } catch {
-    return false;
-  }
-}
-
-async function exists(path: string): Promise<boolean> {
-  try {
-    await stat(path);
-    return true;
-  } catch {
-    return false;
-  }
-}
-
 /**
  * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
  * file: that too comes back as an issue; a path that is not a string is a TypeError.
  */
 export async function loadSpec(path: string): Promise<SpecResult> {
   if (typeof path !== "string") throw new TypeError(`loadSpec needs the path of a spec file, got ${path === null ? "null" : typeof path}`);
+  // one look at the path serves every answer below; a failed look is answered as the read would be
+  let info: Stats | undefined;
+  let statError: unknown;
+  try {
+    info = await stat(path);
+  } catch (error) {
+    statError = error;
+  }
   // a folder given where a spec is expected: say so, not that it lacks an extension
-  if (await isFolder(path)) return wholeFile(path, FOLDER_MESSAGE);
+  if (info?.isDirectory()) return wholeFile(path, FOLDER_MESSAGE);
   if (!/\.(ya?ml|json)$/i.test(path)) {
     const extension = /\.[^./\\]*$/.exec(path)?.[0];
     // a path with no extension that is not there at all is more likely a mistyped folder than a spec without extension
-    if (extension === undefined && !(await exists(path))) return wholeFile(path, "no such file or folder");
+    if (extension === undefined && info === undefined) return wholeFile(path, "no such file or folder");
     return wholeFile(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
   }
   try {
-    const info = await stat(path);
-    if (!info.isFile()) return wholeFile(path, info.isDirectory() ? FOLDER_MESSAGE : "not a file");
+    if (info === undefined) throw statError;
+    if (!info.isFile()) return wholeFile(path, "not a file");
     if (info.size > MAX_SPEC_BYTES) {
       return wholeFile(path, `the file has ${info.size} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
     }
