@@ -3,7 +3,7 @@
  * ending in a row, never in an exception. The reading and the judging are passed in, so the worker
  * thread, the library and the tests share this code.
  */
-import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath, MAX_SPEC_BYTES, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import type { RowError, SpecSummary } from "./types.js";
 import { decodeSpecBytes } from "../spec/text.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
@@ -43,9 +43,6 @@ export interface TextHooks<T = SpecSummary> extends Omit<EvaluateHooks<T>, "read
   /** the variant applied to the text (default: varyText with `schema`); `textVarier` parses the text once for many variants */
   vary?: (variant: Variant) => VariedText;
 }
-
-/** Files larger than this are refused before reading (the spec loader's limit). */
-const MAX_SPEC_BYTES = 10 * 1024 * 1024;
 
 function inputError(message: string, position?: RowError["position"]): TaskFailure {
   return { status: "error", error: position ? { kind: "input", message, position } : { kind: "input", message } };
