@@ -43,7 +43,6 @@ export function describeValue(value: unknown): string {
  */
 function numberHint(input: unknown, expected: string): string {
   if (expected === "boolean" && typeof input === "string") {
-    // YAML 1.1's booleans; the 1.2 core schema (§10.3.2) has only true and false
     const word = input.trim().toLowerCase();
     if (word === "true" || word === "false") return " (quoted, so YAML reads it as text; remove the quotes)";
     if (/^(?:y|yes|on)$/.test(word)) return ` (YAML 1.2 reads ${input} as text; write true)`;
