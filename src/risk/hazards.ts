@@ -218,7 +218,8 @@ export function evaluateHazard(
       at,
       sentence,
     };
-    evaluation.layer = subject;
+    // an evaluation names its own layer only where it is not the check's: most name none, and keep one layout
+    if (subject !== site.layer) evaluation.layer = subject;
     evaluations.push(evaluation);
     if (verdict !== "fits") {
       // `at` always present (undefined for a site without an end, which JSON leaves out): one layout
@@ -235,8 +236,14 @@ export function evaluateHazard(
       });
     }
   }
-  // an evaluation names its own layer only where it is not the check's
-  for (let i = 0; i < evaluations.length; i++) if ((evaluations[i] as HazardEvaluation).layer === layer) delete (evaluations[i] as HazardEvaluation).layer;
+  // the check took a network-wide count's tensor for its layer: that tensor's evaluations name none, the others the site's
+  if (layer !== site.layer) {
+    for (let i = 0; i < evaluations.length; i++) {
+      const evaluation = evaluations[i] as HazardEvaluation;
+      if (evaluation.layer === layer) delete evaluation.layer;
+      else if (evaluation.layer === undefined) evaluation.layer = site.layer;
+    }
+  }
   return {
     kind: site.kind,
     layer,
