@@ -274,6 +274,16 @@ describe("Adam's epsilon of the training setup, counted over the context's weigh
     expect(judged.findings.map((f) => [f.kind, f.severity, f.at])).toEqual([["optimizer-epsilon-flushed", "fails", "end"]]);
   });
 
+  it("names the layer of the gradient contributing most, on the check alone: its evaluation names no other", () => {
+    // at the end "a" gives about 1.45 of the 1.89 zero second moments (the counts above)
+    expect(zeros(100, 0.3)).toBeGreaterThan(zeros(100, 1));
+    const judged = evaluateHazard(epsilonSite, states, "training setup");
+    expect(judged.layer).toBe("a");
+    expect(judged.input).toBe(weightGradients[0]!.end);
+    expect(judged.evaluations[0]).not.toHaveProperty("layer");
+    expect(judged.findings.map((f) => f.subject)).toEqual(["a"]);
+  });
+
   it("judges a site of the prediction at its own gradient, whatever weight gradients the context has", () => {
     const judged = evaluateHazard(epsilonSite, states, "prediction");
     const own = zeros(100, 1.2);
