@@ -60,12 +60,8 @@ function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
   ];
   // a profile that is all zeros (a bias at initialisation) has no magnitudes to show
   const shown = sides.filter((side) => side.p.rms > 0);
-  const first = shown[0] ?? (sides[0] as (typeof sides)[number]);
-  const second = shown[1] ?? first;
-  const start = first.p;
-  const end = second.p;
-  const startScale = first.scale;
-  const endScale = second.scale;
+  const start = shown[0] ?? (sides[0] as (typeof sides)[number]);
+  const end = shown[1] ?? start;
   const band: ReportTensorBand = {
     id: tensor.id,
     layer: tensor.layer,
@@ -73,9 +69,9 @@ function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
     role: tensorLabel(tensor),
     pass: FORWARD_ROLES.has(tensor.role) ? "forward" : "backward",
     format,
-    lowLog2: log2(Math.min(start.low * startScale, end.low * endScale)),
-    rmsLog2: log2(start.rms * startScale),
-    highLog2: log2(Math.max(start.max * startScale, end.max * endScale)),
+    lowLog2: log2(Math.min(start.p.low * start.scale, end.p.low * end.scale)),
+    rmsLog2: log2(start.p.rms * start.scale),
+    highLog2: log2(Math.max(start.p.max * start.scale, end.p.max * end.scale)),
     verdict: risk?.verdict ?? tensor.verdict,
     note: worst?.sentence ?? "",
   };
