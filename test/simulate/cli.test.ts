@@ -4,6 +4,7 @@ import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
 import { parseShrink } from "../../src/cli/simulate.js";
+import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { shrinkSpec } from "../../src/simulate/index.js";
 import { runCli } from "../helpers/run.js";
@@ -161,8 +162,9 @@ function simulateJson(args: readonly string[]): SimulationJson {
   return JSON.parse(run.stdout) as SimulationJson;
 }
 
-// the share check calls at risk for flushing (src/risk/catalogue.ts DEFAULT_THRESHOLDS, 1%)
-const flushedGradients = (out: SimulationJson): string[] => out.tensors.filter((t) => t.slot === "gradients" && t.measured.counts.flushed >= 0.01).map((t) => t.id);
+// the share check calls at risk for flushing (1%), read from the check's own thresholds
+const flushedGradients = (out: SimulationJson): string[] =>
+  out.tensors.filter((t) => t.slot === "gradients" && t.measured.counts.flushed >= DEFAULT_THRESHOLDS.flushedAtRisk).map((t) => t.id);
 
 describe("the loss scale simulate runs at", () => {
   const file = specFile("fading.yaml", FADING);
