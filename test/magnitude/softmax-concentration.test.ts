@@ -62,7 +62,6 @@ describe("softmax probabilities at large logit variance", () => {
   });
 
   for (const id of Object.keys(PROBABILITIES)) {
-    const keys = PROBABILITIES[id] as number;
     for (const at of ["start", "end"] as const) {
       it(`${id} at the ${at}: a profile of numbers in [0, 1] with max ≥ rms and a positive low quantile`, () => {
         const t = tensors.find((x) => x.id === id)!;
@@ -78,7 +77,6 @@ describe("softmax probabilities at large logit variance", () => {
         expect(stats.low).toBeGreaterThan(0);
         expect(stats.low).toBeLessThan(stats.rms);
       });
-
     }
   }
 
