@@ -222,6 +222,8 @@ describe("the pools' ledger rules", () => {
         }),
       );
     const expected = maxSecondMoment(4);
+    // E[M²] = mean² + variance of the largest of 4 standard normals, 1.0294² + 0.4917 = 1.5513 (tables of normal
+    // order statistics, Teichroew 1956; from memory)
     expect(expected).toBeCloseTo(1.5513, 3);
     expect(ruleOf(chain("max-pool", "tanh"), "p/activation")).toBe(`max of 4 Gaussians: E[M²]/E[x²] = ${Number(expected.toPrecision(4))}`);
     expect(ruleOf(chain("max-pool", "relu"), "p/activation")).toMatch(/^max of 4 ReLU outputs: E\[M²\]\/E\[x²\] = \d/);
