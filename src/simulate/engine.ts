@@ -467,8 +467,7 @@ function chooseLossScale(
   if (options.lossScale !== undefined) return { value: options.lossScale, origin: "option" };
   if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
   if (options.defaultLossScale === undefined) return { value: 1, origin: "none" };
-  const answer = options.defaultLossScale(simulated, { plan, shrunk });
-  return { value: answer.value, origin: answer.origin, reason: answer.reason };
+  return options.defaultLossScale(simulated, { plan, shrunk });
 }
 
 /** A rounding function for the accumulate format, or undefined for binary64 (no rounding needed). */
