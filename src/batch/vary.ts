@@ -188,22 +188,25 @@ function childSchemas(root: Schema, schemas: Schema[], key: string | number): Sc
   return out;
 }
 
-/** Whether a JSON Schema (draft-07, as the spec module exports it) has a place for `path`. */
-export function schemaHasPath(schema: Schema, path: readonly (string | number)[]): boolean {
+/** The branches of a JSON Schema that may hold the value at `path`; none once a step has no place. */
+function schemasAt(schema: Schema, path: readonly (string | number)[]): Schema[] {
   let schemas = resolve(schema, schema);
   for (const key of path) {
     schemas = childSchemas(schema, schemas, key);
-    if (schemas.length === 0) return false;
+    if (schemas.length === 0) break;
   }
-  return true;
+  return schemas;
+}
+
+/** Whether a JSON Schema (draft-07, as the spec module exports it) has a place for `path`. */
+export function schemaHasPath(schema: Schema, path: readonly (string | number)[]): boolean {
+  return path.length === 0 || schemasAt(schema, path).length > 0;
 }
 
 /** The keys a JSON Schema names for the map at `path` (its properties, over every branch of a union). */
 function schemaKeysAt(schema: Schema, path: readonly (string | number)[]): string[] {
-  let schemas = resolve(schema, schema);
-  for (const key of path) schemas = childSchemas(schema, schemas, key);
   const keys = new Set<string>();
-  for (const s of schemas) {
+  for (const s of schemasAt(schema, path)) {
     const properties = s["properties"];
     if (properties !== null && typeof properties === "object") for (const key of Object.keys(properties)) keys.add(key);
   }
