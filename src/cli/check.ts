@@ -1,5 +1,4 @@
 import { check, CheckInputError } from "../check.js";
-import type { FormatName } from "../formats/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
@@ -16,16 +15,11 @@ export interface JudgeFlags {
   lossScale?: string;
 }
 
-/** Parse `--format a,b --format c` into format names (aliases such as fp16 accepted). */
-function parseFormats(values: readonly string[] | undefined): FormatName[] | undefined {
-  return values === undefined ? undefined : parseFormatList("--format", values).map((format) => format.name);
-}
-
 /** `--format`, `--plan` and `--loss-scale` as check options: one reading for every path (`check`, `check --vary`, `explain`, `report`). */
 export function judgeOptions(flags: JudgeFlags): CheckOptions {
   const options: CheckOptions = {};
-  const formats = parseFormats(flags.format);
-  if (formats !== undefined) options.formats = formats;
+  // `--format a,b --format c`, aliases such as fp16 accepted
+  if (flags.format !== undefined) options.formats = parseFormatList("--format", flags.format).map((format) => format.name);
   const lossScale = parseLossScale(flags.lossScale);
   if (lossScale !== undefined) options.lossScale = lossScale;
   if (flags.plan !== undefined) options.plan = flags.plan;
