@@ -137,7 +137,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     const factor = tensor.statistics.factor;
     const log2 = Math.log2(factor);
     const value = Number.isInteger(log2) ? `2^${log2} = ${formatValue(factor)}` : formatValue(factor);
-    const origin = result.lossScale.value !== factor ? "" : { recommended: " (the recommended pick; the plan gives none)", plan: " (from the plan)", option: " (from the options)", none: "" }[result.lossScale.origin];
+    const origin = result.lossScale.value !== factor ? "" : { recommended: " (the recommended pick; the plan gives none)", plan: " (from the plan)", option: " (from the command line)", none: "" }[result.lossScale.origin];
     out += wrap(`The check multiplies it by the loss scale ${value}${origin} before judging it.`, width, "  ", "  ");
   }
 

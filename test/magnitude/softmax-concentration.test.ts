@@ -1,6 +1,6 @@
 /**
  * Softmax probabilities at large logit variance: once one key takes nearly all of a row, the profile of the
- * probabilities must stay a distribution of numbers in [0, 1] whose rows sum to 1, at the start and at the end of
+ * probabilities must stay a distribution of numbers in [0, 1] (largest at most 1, a positive low quantile), at the start and at the end of
  * the horizon, where weight growth multiplies the logits' variance by a large factor.
  */
 import { describe, expect, it } from "vitest";
