@@ -208,6 +208,7 @@ class Phase {
       detail: this.build ? textOf(h.detail) : "",
       output: h.output !== undefined ? profileOf(h.output, h.outputElements ?? h.inputElements) : undefined,
       end: undefined,
+      tensor: undefined,
     };
     this.hazards.push(site);
   }
@@ -406,6 +407,7 @@ class Phase {
       detail: !this.build ? "" : id + this.sumDetail(),
       output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
       end: undefined,
+      tensor: this.build ? id : undefined,
     };
     this.hazards.push(site);
   }
@@ -507,6 +509,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
       detail: `the loss sums ${seed.terms} terms (sum reduction)`,
       output: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
       end: undefined,
+      tensor: undefined,
     });
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);

@@ -144,6 +144,8 @@ export interface HazardSite {
   output?: MagnitudeProfile;
   /** the same site at the end of the training horizon */
   end?: { input: MagnitudeProfile; output?: MagnitudeProfile };
+  /** the tensor the operation acts on, when its layer has several (a gradient-sum site's weight or bias gradient) */
+  tensor?: string;
 }
 
 /** The magnitude engine's output for one spec and plan. */

@@ -385,11 +385,9 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
   }
 }
 
-// A prediction's gradient-sum site names its weight gradient first in its detail ("dense-1/weight-gradient:bias: ..."):
-// a layer's weight and bias have a site each, which the layer's name alone would not tell apart
+// a layer's weight and bias have a gradient-sum site each, which the layer's name alone would not tell apart
 function gradientOf(site: HazardSite): string {
-  const id = site.detail.split(": ")[0] ?? "";
-  return id.includes("/") ? id : site.layer;
+  return site.tensor ?? site.layer;
 }
 
 // A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), laid out as magnitude/profile.ts's

@@ -707,6 +707,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
             : `${training.loss.kind} loss (mean reduction), times the loss scale`,
         output: undefined,
         end: undefined,
+        tensor: undefined,
       });
     }
   }
@@ -727,6 +728,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
           `${training.accumulationSteps} accumulation step${training.accumulationSteps === 1 ? "" : "s"} (${training.workerGradients})`,
         output: undefined,
         end: undefined,
+        tensor: undefined,
       });
     }
   }
@@ -752,6 +754,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         // judged at the start and the end of the horizon all the same: its count sums over the context's weight
         // gradients at each side (src/risk/hazards.ts)
         end: undefined,
+        tensor: undefined,
       });
     }
     if (!hasSite(prediction.hazards, "optimizer-second-moment")) {
@@ -765,6 +768,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
         detail: `${optimizer.kind} second moments (1 − β2)·g², β2 = ${optimizer.betas[1]}, in the optimizer-state format`,
         output: undefined,
         end: undefined,
+        tensor: undefined,
       });
     }
   }

@@ -2,6 +2,9 @@ import { describe, expect, it } from "vitest";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, type HazardContext } from "../../src/risk/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import { dense, features, he, makeSpec } from "../magnitude/build-spec.js";
 
 function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
   return { elements: 1, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
@@ -168,15 +171,25 @@ describe("gradient sums across workers", () => {
     expect(flush?.severity).toBe("at-risk");
   });
 
-  it("names the weight gradient its detail gives, so a layer's weight and bias sites read apart", () => {
+  it("names the weight gradient of its site, so a layer's weight and bias sites read apart", () => {
     const sum = (id: string) =>
-      site({ kind: "gradient-sum", layer: "words", detail: `${id}: 4 accumulation steps × 16 workers summed`, terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
+      site({ kind: "gradient-sum", layer: "words", tensor: id, detail: `${id}: 4 accumulation steps × 16 workers summed`, terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
     const weight = evaluateHazard(sum("words/weight-gradient"), context({ workers: 16 })).evaluations[0]?.sentence;
     const bias = evaluateHazard(sum("words/weight-gradient:bias"), context({ workers: 16 })).evaluations[0]?.sentence;
     expect(weight).toMatch(/^The sum of 64 gradient contributions of words\/weight-gradient \(rms/);
     expect(bias).toMatch(/^The sum of 64 gradient contributions of words\/weight-gradient:bias \(rms/);
-    // a site whose detail names no tensor keeps its layer
-    expect(evaluateHazard(site({ kind: "gradient-sum", layer: "words", terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) }), context({ workers: 16 })).evaluations[0]?.sentence).toMatch(/contributions of words \(rms/);
+    // a site that names no tensor keeps its layer, whatever its detail says
+    const plain = site({ kind: "gradient-sum", layer: "words", detail: "words/weight-gradient: summed", terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
+    expect(evaluateHazard(plain, context({ workers: 16 })).evaluations[0]?.sentence).toMatch(/contributions of words \(rms/);
+  });
+
+  it("the engine names each gradient-sum site's weight gradient (a layer with a weight and a bias)", () => {
+    // a scorer for an invented sensor feed, trained on 4 workers with 2 accumulation steps
+    const spec = makeSpec([dense("scorer", 8, he, true)], { input: features(16), training: { batch: 8, workers: 4, accumulationSteps: 2 } });
+    const graph = buildGraph(spec);
+    if (!graph.ok) throw new Error("does not build");
+    const sites = predict(graph.graph, spec).hazards.filter((s) => s.kind === "gradient-sum");
+    expect(sites.map((s) => s.tensor)).toEqual(["scorer/weight-gradient", "scorer/weight-gradient:bias"]);
   });
 });
 
