@@ -5,7 +5,10 @@
  * from memory, unconfirmed, and the tests hold this model to a Monte Carlo of the rule itself).
  *
  * Consequences [X, SCIENCE.md §1.4]: a block's maximum can be clipped by up to 2^(emax+1)/max (e4m3: 512/448),
- * and elements far below their block's maximum flush to zero.
+ * and elements far below their block's maximum flush to zero. The clamp belongs to the block conversion itself
+ * (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, "clamping normal numbers", from memory), so that bounded clip is
+ * no overflow under either overflow mode; only a block whose scale would pass E8M0's largest, 2^127, leaves its
+ * maximum beyond the element range by more than that clip.
  */
 import type { Format } from "../formats/index.js";
 import { normalCdf, normalPdf } from "../numeric/index.js";
@@ -19,13 +22,21 @@ export interface BlockScaledRisk {
   flushedEnergy: number;
   /** share of elements clipped to the element format's largest value (a block maximum past it) */
   clippedFraction: number;
+  /**
+   * magnitudes at or above this, 2^(127 + emax + 1), need a shared exponent past E8M0's largest: their block's scale
+   * is clamped to 2^127 and they land at 2^(emax+1) or more, past the element range (overflow, or saturation)
+   */
+  scaleClampLevel: number;
 }
+
+/** The largest shared exponent an E8M0 scale holds: 2^(254 − 127) (OCP MX v1.0, the E8M0 scale; SCIENCE.md §1.4). */
+const E8M0_MAX_EXPONENT = 127;
 
 /**
  * Analytic block-scaled conversion of Gaussian-like elements (the scale of the tensor cancels: each block's scale
  * follows its own maximum). Integrates over the distribution of a block's largest magnitude, with the other
  * elements of the block independent and below it.
- * @example blockScaledRisk(FORMATS.e4m3).clippedFraction // => about 0.005
+ * @example blockScaledRisk(FORMATS.e4m3).clippedFraction // => about 0.0086
  */
 export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flushBound">, blockSize = 32): BlockScaledRisk {
   if (!(Number.isInteger(blockSize) && blockSize >= 2)) throw new RangeError(`blockSize must be an integer ≥ 2. Value: ${blockSize}`);
@@ -39,6 +50,7 @@ export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flu
     flushedFraction: (sums[0] as number) / mass / n,
     flushedEnergy: (sums[2] as number) / mass / totalEnergy,
     clippedFraction: (sums[1] as number) / mass / n,
+    scaleClampLevel: 2 ** (E8M0_MAX_EXPONENT + format.emax + 1),
   };
 }
 

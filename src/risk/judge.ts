@@ -846,6 +846,10 @@ function checkAssumptions(
       plan.scaling === "none"
         ? "8-bit formats are judged without scale factors."
         : `8-bit formats are judged with a per-tensor scale factor 2^⌊log2(max finite / predicted max)⌋${plan.scaling === "block" ? " (with per-block scaling, flushing and clipping follow the rule for blocks of 32 elements of Gaussian-like values)" : ""}; conversions ${plan.overflow === "saturate" ? "saturate" : "give infinity or NaN"} on overflow.` +
+            // the block conversion's own clamp (OCP MX v1.0 §6, from memory; src/risk/blocks.ts)
+            (plan.scaling === "block"
+              ? " A block's conversion clamps its elements to the largest finite value, so only a block that would need a scale above 2^127 overflows or saturates."
+              : "") +
             (plan.scaling === "tensor" && plan.overflow === "saturate"
               ? ` The predicted max is the level passed once in ${plainNumber(1 / thresholds.maxQuantile)} steps, so a tensor's largest elements are clipped about that often by the scale rule itself; saturation counts as a finding only when it comes more often (above ${plainNumber(overflowAtRiskThreshold(thresholds, true))} per step).`
               : ""),

@@ -5,6 +5,7 @@
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
 import {
+  probabilityAnyAbove,
   profileRisk,
   profileStatistics,
   sameDistribution,
@@ -173,9 +174,9 @@ export function tensorFormatRisk(
 /** {@link tensorFormatRisk} from a {@link scaledTensor}: the same numbers, without scaling the profiles again. */
 export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
   const { statistics } = scaled;
-  const start = evaluate(tensor.start, scaled.start, statistics.start, limits, options);
+  const start = evaluate(scaled.start, statistics.start, limits, options);
   const startScaleLog2 = evaluatedScaleLog2;
-  const end = scaled.same ? start : evaluate(tensor.end, scaled.end, statistics.end, limits, options);
+  const end = scaled.same ? start : evaluate(scaled.end, statistics.end, limits, options);
   const endScaleLog2 = evaluatedScaleLog2;
   const worst = worseOf(start, end);
   const findings = tensorFindings(tensor, limits, worst, start, end, options);
@@ -194,10 +195,9 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
 // the per-tensor scale exponent of the last `evaluate` (a second return value, without an object per call)
 let evaluatedScaleLog2 = 0;
 
-// One profile (`scaled`: the predicted `profile` times the loss-scale factor) against one format; its scale
+// One profile (`scaled`: the predicted profile times the loss-scale factor) against one format; its scale
 // exponent is left in evaluatedScaleLog2.
 function evaluate(
-  profile: MagnitudeProfile,
   scaled: MagnitudeProfile,
   stats: ProfileStatistics,
   limits: RangeLimits,
@@ -215,14 +215,15 @@ function evaluate(
   evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
   if (!block) return risk;
-  // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts);
-  // a clipped block maximum is an overflow only when the conversion does not saturate (OCP MX leaves it to the implementation)
-  const nonzero = Math.max(1, profile.elements * (1 - profile.zeroFraction));
+  // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts).
+  // The block conversion clamps a scaled element to ± the largest normal (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1,
+  // from memory), so the top of a block's binade is clipped by at most 2^(emax+1)/max under either overflow mode; an
+  // element leaves the element range only where its block's scale is clamped at E8M0's 2^127
   return {
     flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
     subnormalFraction: risk.subnormalFraction,
     flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
-    overflowRisk: limits.saturates ? 0 : -Math.expm1(nonzero * Math.log1p(-block.clippedFraction)),
+    overflowRisk: probabilityAnyAbove(scaled, block.scaleClampLevel),
     headroom: risk.headroom,
     footroom: risk.footroom,
   };
@@ -301,7 +302,8 @@ function tensorFindings(
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
   // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
   // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed
-  const overflowAtRisk = overflowAtRiskThreshold(t, options.perTensorScaling && limits.saturates);
+  // a block whose scale is clamped at 2^127 is clipped without the per-tensor rule's bound: no leeway for it
+  const overflowAtRisk = overflowAtRiskThreshold(t, options.perTensorScaling && !options.blockScaling && limits.saturates);
   const overflow = grade(worst.overflowRisk, overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
     const threshold = overflow === "fails" ? t.overflowFails : overflowAtRisk;

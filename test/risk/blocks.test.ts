@@ -1,7 +1,10 @@
 import { describe, expect, it } from "vitest";
 import { FORMATS, roundTo } from "../../src/formats/index.js";
 import { createRandom } from "../../src/numeric/index.js";
+import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { blockScaledRisk } from "../../src/risk/blocks.js";
+import { DEFAULT_THRESHOLDS, tensorFormatRisk, tensorStatistics, type RangeLimits, type RiskThresholds } from "../../src/risk/index.js";
+import { E4M3_NAN, E4M3_SATURATING } from "./limits.js";
 
 /**
  * The conversion rule itself, element by element, with the format model (SCIENCE.md §1.4, OCP MX v1.0 §6 /
@@ -79,5 +82,136 @@ describe("check with per-block scale factors", () => {
     expect(worst(perBlock)).toBeLessThanOrEqual(worst(perTensor));
     const saturations = (r: ReturnType<typeof judged>) => r.tensors.flatMap((t) => t.risks.flatMap((x) => x.findings)).filter((f) => f.kind === "saturation");
     expect(saturations(perBlock)).toHaveLength(0);
+  });
+
+  it("judges an 8-bit plan the same whether its conversions saturate or give infinity or NaN (no scale reaches E8M0's limit)", async () => {
+    const { loadSpec } = await import("../../src/spec/index.js");
+    const { check } = await import("../../src/check.js");
+    const { ROOT } = await import("../helpers/run.js");
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/transformer-encoder.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const eightBit = loaded.spec.plans.find((p) => p.weights === "e4m3");
+    if (!eightBit) throw new Error("the example has no 8-bit plan");
+    const judged = (overflow: "saturate" | "infinity-or-nan") => check({ ...loaded.spec, precision: { ...eightBit, scaling: "block", overflow } });
+    const eightBitFindings = (r: ReturnType<typeof judged>) =>
+      r.tensors.flatMap((t) => t.risks.flatMap((x) => x.findings)).filter((f) => f.format === "e4m3" || f.format === "e5m2");
+    const nan = judged("infinity-or-nan");
+    expect(eightBitFindings(nan).filter((f) => f.kind === "overflow")).toEqual([]);
+    const held = (r: ReturnType<typeof judged>) =>
+      r.tensors.flatMap((t) => t.risks.filter((x) => x.judged && (x.format === "e4m3" || x.format === "e5m2")).map((x) => [t.id, x.format, x.worst.overflowRisk]));
+    expect(held(nan).length).toBeGreaterThan(0);
+    expect(held(nan)).toEqual(held(judged("saturate")));
+    expect(eightBitFindings(nan).map((f) => [f.subject, f.kind])).toEqual(eightBitFindings(judged("saturate")).map((f) => [f.subject, f.kind]));
+  });
+});
+
+// e5m2 written out from the OCP 8-bit specification (SCIENCE.md check values 12, 14, 15): largest finite 57344,
+// 61440 rounds to infinity, 2^-17 and below to zero
+const E5M2_INFINITY: RangeLimits = {
+  format: "e5m2",
+  maxFinite: 57344,
+  overflowLevel: 61440,
+  saturates: false,
+  flushBound: 2 ** -17,
+  minNormal: 2 ** -14,
+  smallest: 2 ** -16,
+  unitRoundoff: 2 ** -3,
+};
+const E5M2_SATURATING: RangeLimits = { ...E5M2_INFINITY, overflowLevel: 57344, saturates: true };
+
+function activation(start: Partial<MagnitudeProfile>): TensorPrediction {
+  const profile: MagnitudeProfile = { elements: 1e6, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...start };
+  return { id: "mixer/activation", layer: "mixer", layerIndex: 1, family: "dense", role: "activation", slot: "activations", shape: [1000, 1000], ledger: [], source: "predicted", start: profile, end: profile };
+}
+
+function blockJudged(t: TensorPrediction, limits: RangeLimits) {
+  const format = limits.format === "e4m3" ? FORMATS.e4m3 : FORMATS.e5m2;
+  return tensorFormatRisk(t, limits, tensorStatistics(t, 1, DEFAULT_THRESHOLDS), {
+    judged: true,
+    perTensorScaling: true,
+    blockScaling: blockScaledRisk(format),
+    thresholds: DEFAULT_THRESHOLDS as RiskThresholds,
+  });
+}
+
+// The conversion of one block (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4): the
+// shared exponent ⌊log2 max|V|⌋ − emax, clamped to the E8M0 range 2^-127 … 2^127 [S]; each element clamped to ± the
+// largest normal while the scale follows the block's maximum. Past E8M0's largest scale the maximum lands at
+// 2^(emax+1) or more, beyond the element range, and the plan's overflow mode decides.
+function convertBlock(block: Float64Array, format: (typeof FORMATS)["e4m3"], overflow: "saturate" | "infinity-or-nan"): Float64Array {
+  let max = 0;
+  for (const v of block) max = Math.max(max, Math.abs(v));
+  const shared = Math.floor(Math.log2(max)) - format.emax;
+  const X = 2 ** Math.min(127, shared);
+  return block.map((v) => roundTo(format, v / X, { overflow: shared > 127 ? overflow : "saturate" }));
+}
+
+describe("overflow with per-block scale factors", () => {
+  it("a Gaussian tensor converted without saturation is not judged overflowing: the block conversion clamps its binade's top", () => {
+    // the rule itself on 20,000 blocks: every stored value finite, and the largest clipped by at most 2^(emax+1)/max
+    // (e4m3 512/448, e5m2 65536/57344: both 8/7)
+    const random = createRandom(21);
+    const block = new Float64Array(32);
+    for (const format of [FORMATS.e4m3, FORMATS.e5m2]) {
+      let nonFinite = 0;
+      let clipped = 0;
+      for (let b = 0; b < 20_000; b++) {
+        random.fillNormal(block);
+        const stored = convertBlock(block, format, "infinity-or-nan");
+        let max = 0;
+        for (const v of block) max = Math.max(max, Math.abs(v));
+        const X = 2 ** (Math.floor(Math.log2(max)) - format.emax);
+        for (let i = 0; i < 32; i++) {
+          if (!Number.isFinite(stored[i] as number)) nonFinite++;
+          const ratio = Math.abs((block[i] as number) / X) / Math.abs(stored[i] as number);
+          if (Math.abs((block[i] as number) / X) > format.maxFinite) {
+            clipped++;
+            expect(ratio).toBeLessThan(8 / 7);
+          }
+        }
+      }
+      expect(nonFinite).toBe(0);
+      expect(clipped).toBeGreaterThan(0); // the clamp is at work: the floor rule puts block maxima past the largest value
+    }
+    // so the judgement: no overflow for a million Gaussian elements, in e4m3 and e5m2, under either overflow mode
+    for (const limits of [E4M3_NAN, E4M3_SATURATING, E5M2_INFINITY, E5M2_SATURATING]) {
+      const risk = blockJudged(activation({ rms: 3 }), limits);
+      expect(risk.worst.overflowRisk).toBe(0);
+      expect(risk.findings).toEqual([]);
+      expect(risk.verdict).toBe("fits");
+    }
+  });
+
+  it("an all-zero tensor (a bias at initialisation) cannot overflow", () => {
+    const risk = blockJudged(activation({ zeroFraction: 1, rms: 0 }), E4M3_NAN);
+    expect(risk.worst.overflowRisk).toBe(0);
+    expect(risk.verdict).toBe("fits");
+  });
+
+  it("still overflows where a block's scale is clamped at E8M0's largest, 2^127, as the element-by-element rule does", () => {
+    // constant magnitudes c around the level where ⌊log2 c⌋ − emax passes 127 (e4m3: 2^136, e5m2: 2^143): the check
+    // overflows exactly where the rule gives a non-finite value, and saturates there instead when the plan saturates
+    for (const [format, nan, saturating] of [
+      [FORMATS.e4m3, E4M3_NAN, E4M3_SATURATING],
+      [FORMATS.e5m2, E5M2_INFINITY, E5M2_SATURATING],
+    ] as const) {
+      const level = 2 ** (127 + format.emax + 1);
+      for (const c of [level / 2, level * (1 - 2 ** -20), level, level * 1.5, level * 4]) {
+        const stored = convertBlock(new Float64Array(32).fill(c), format, "infinity-or-nan")[0] as number;
+        const expected = Number.isFinite(stored) ? 0 : 1;
+        const t = activation({ shape: "constant", rms: c });
+        const risk = blockJudged(t, nan);
+        expect(risk.worst.overflowRisk).toBe(expected);
+        expect(risk.findings.map((f) => [f.kind, f.severity])).toEqual(expected ? [["overflow", "fails"]] : []);
+        const clipped = blockJudged(t, saturating);
+        expect(clipped.worst.overflowRisk).toBe(expected);
+        expect(clipped.findings.map((f) => [f.kind, f.severity])).toEqual(expected ? [["saturation", "fails"]] : []);
+      }
+      // a Gaussian tensor whose largest elements reach that level (rms 2^(level's exponent + 4)) overflows almost surely,
+      // one 2^16 below it almost never
+      expect(blockJudged(activation({ rms: level * 16 }), nan).worst.overflowRisk).toBeGreaterThan(0.99);
+      expect(blockJudged(activation({ rms: level * 2 ** -16 }), nan).worst.overflowRisk).toBeLessThan(1e-12);
+    }
   });
 });
