@@ -212,6 +212,12 @@ function atRiskOrFailing(failing: number): string {
   return failing === 0 ? "at risk" : `at risk or failing (${failing} ${failing === 1 ? "fails" : "fail"})`;
 }
 
+/** "none of the 8 operation checks is at risk", in the singular for one ("the 1 operation check is not at risk"). */
+export function noneAtRisk(count: number, noun: string): string {
+  if (count === 0) return `no ${noun} to judge.`;
+  return count === 1 ? `the 1 ${noun} is not at risk.` : `none of the ${count} ${noun}s is at risk.`;
+}
+
 /** Rows shown without --all. */
 export const TENSOR_ROW_LIMIT = 30;
 
@@ -357,7 +363,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   const judgedCount = result.tensors.reduce((n, t) => n + t.risks.filter((r) => r.judged).length, 0);
   out += "\n" + style.role("strong", all ? "Tensors" : "Tensors at risk") + "\n";
   if (rows.length === 0) {
-    out += `  none of the ${judgedCount} tensors is at risk.\n`;
+    out += `  ${noneAtRisk(judgedCount, "tensor")}\n`;
   } else {
     const shown = all ? rows : rows.slice(0, TENSOR_ROW_LIMIT);
     out += renderTensorTable(shown, style);
@@ -389,7 +395,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   const hazardText = renderHazards(result.hazards, all, width, style);
   const evaluationCount = result.hazards.reduce((n, h) => n + h.evaluations.length, 0);
   out += "\n" + style.role("strong", all ? "Operation hazards" : "Operation hazards at risk") + "\n";
-  if (hazardText === "") out += `  none of the ${evaluationCount} operation checks is at risk.\n`;
+  if (hazardText === "") out += `  ${noneAtRisk(evaluationCount, "operation check")}\n`;
   else out += hazardText;
 
   out += "\n" + style.role("strong", "Assumptions") + "\n";

@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { describeLossScale, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
+import { describeLossScale, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, noneAtRisk, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -266,5 +266,32 @@ describe("the optimizer line's epsilon", () => {
     const text = renderCheckText(check(parsed.spec), { width: 400 });
     expect(text).toContain("epsilon 1e-6 is held as 9.98e-7 in bfloat16.");
     expect(text).not.toContain("0.000001");
+  });
+});
+
+describe("the count of a section with nothing at risk", () => {
+  // an invented 8-bit plan judged in bfloat16 alone: only the loss value is an operation check held in bfloat16
+  const text = [
+    "name: parcel-sorter",
+    "input: { features: 64 }",
+    "training: { batch: 32, loss: { kind: cross-entropy, classes: 12 }, optimizer: { kind: momentum, learning-rate: 0.05 } }",
+    "precision: { activations: e4m3, weights: e4m3, gradients: e5m2 }",
+    "layers:",
+    "  - { type: dense, width: 12, init: he-normal }",
+  ].join("\n");
+
+  it("says 'the 1 operation check is not at risk', not 'none of the 1 operation checks'", () => {
+    const parsed = parseSpec(text, "parcel-sorter.yaml");
+    if (!parsed.ok) throw new Error("the inline spec does not parse");
+    const result = check(parsed.spec, { formats: ["bfloat16"] });
+    expect(result.hazards.reduce((n, h) => n + h.evaluations.length, 0)).toBe(1);
+    const out = renderCheckText(result, { width: 200 });
+    expect(out).toContain("  the 1 operation check is not at risk.\n");
+    expect(out).not.toContain("none of the 1 ");
+  });
+
+  it("keeps the plural form for several", () => {
+    expect(noneAtRisk(8, "operation check")).toBe("none of the 8 operation checks is at risk.");
+    expect(noneAtRisk(1, "tensor")).toBe("the 1 tensor is not at risk.");
   });
 });
