@@ -1,7 +1,7 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { describeLossScale, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, noneAtRisk, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
+import { describeLossScale, describePlan, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, noneAtRisk, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -293,5 +293,37 @@ describe("the count of a section with nothing at risk", () => {
   it("keeps the plural form for several", () => {
     expect(noneAtRisk(8, "operation check")).toBe("none of the 8 operation checks is at risk.");
     expect(noneAtRisk(1, "tensor")).toBe("the 1 tensor is not at risk.");
+  });
+});
+
+describe("the plan line names the conversion settings", () => {
+  const base = {
+    name: "eight",
+    activations: "e4m3",
+    weights: "e4m3",
+    gradients: "e5m2",
+    optimizerStates: "binary32",
+    masterWeights: "binary32",
+    accumulate: "binary32",
+    overflow: "saturate",
+    flushSubnormals: false,
+    scaling: "tensor",
+  } as const;
+
+  it("tells 8-bit plans that differ only in scale factors or overflow mode apart (OCP 8-bit specification: saturating and non-saturating conversions)", () => {
+    const lines = new Set(
+      (["none", "tensor", "block"] as const).flatMap((scaling) =>
+        (["saturate", "infinity-or-nan"] as const).map((overflow) => describePlan({ ...base, scaling, overflow })),
+      ),
+    );
+    expect(lines.size).toBe(6);
+    expect(describePlan(base)).toMatch(/; 8-bit with per-tensor scale factors, saturating on overflow$/);
+    expect(describePlan({ ...base, scaling: "none", overflow: "infinity-or-nan" })).toMatch(/; 8-bit without scale factors, infinity or NaN on overflow$/);
+  });
+
+  it("says when subnormals are flushed, and adds nothing to a plan with neither", () => {
+    const bfloat = { ...base, activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", scaling: "none" } as const;
+    expect(describePlan({ ...bfloat, flushSubnormals: true })).toMatch(/accumulation binary32; subnormals flushed to zero$/);
+    expect(describePlan(bfloat)).toMatch(/accumulation binary32$/);
   });
 });
