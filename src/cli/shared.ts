@@ -1,6 +1,6 @@
 /** Helpers that several commands share, kept apart from the commands so that each loads only what it runs. */
 import { randomBytes } from "node:crypto";
-import { renameSync, rmSync, writeFileSync } from "node:fs";
+import { renameSync, rmSync, statSync, writeFileSync } from "node:fs";
 import { dirname, basename, join } from "node:path";
 import { parseVaryOption, variantsOf, VaryError, type Variant } from "../batch/vary.js";
 import { UserError } from "./errors.js";
@@ -41,7 +41,25 @@ export function writeFileAtomic(path: string, text: string): void {
   } catch (error) {
     rmSync(temporary, { force: true });
     const code = (error as { code?: unknown }).code;
-    if (typeof code === "string") throw new UserError(`${path}: cannot write the report (${code})`);
+    if (typeof code === "string") throw new UserError(`${path}: cannot write the report: ${writeProblem(path, code)}`);
     throw error;
+  }
+}
+
+/** Why a file could not be written, in words a user can act on (the system's code only when it is none of these). */
+function writeProblem(path: string, code: string): string {
+  if (isFolder(path)) return "it is a folder; give a file name, such as report.html";
+  if (code === "ENOENT" || code === "ENOTDIR") return `the folder ${dirname(path)} does not exist`;
+  if (code === "EACCES" || code === "EPERM") return "permission denied";
+  if (code === "EROFS") return "the file system is read-only";
+  if (code === "ENOSPC") return "no space left on the device";
+  return `the system reports ${code}`;
+}
+
+function isFolder(path: string): boolean {
+  try {
+    return statSync(path).isDirectory();
+  } catch {
+    return false;
   }
 }

@@ -1,6 +1,6 @@
 import { existsSync, mkdtempSync, readdirSync, readFileSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
-import { join } from "node:path";
+import { basename, dirname, join } from "node:path";
 import { afterAll, beforeAll, describe, expect, test } from "vitest";
 import { runCli } from "../helpers/run.js";
 
@@ -22,7 +22,8 @@ describe("headroom report", () => {
     expect(html).toContain("Content-Security-Policy");
     expect(html).not.toMatch(/<script/i);
     expect(html).toContain('<svg class="chart band-chart"');
-    expect(readdirSync(dir).filter((name) => name.endsWith(".tmp"))).toEqual([]);
+    // the temporary file beside the target (in its parent folder) is gone too
+    expect(readdirSync(dirname(dir)).filter((name) => name.startsWith(`.${basename(dir)}.`))).toEqual([]);
   });
 
   test("is byte-identical across two runs, to a file and to stdout", () => {
@@ -43,10 +44,19 @@ describe("headroom report", () => {
     expect(existsSync(file)).toBe(false);
   });
 
-  test("an unwritable target is an input error", () => {
-    const run = runCli(["report", "specs/cnn-batchnorm.yaml", "-o", join(dir, "missing-folder", "x.html")]);
+  test("an unwritable target is an input error that says why in words", () => {
+    const missing = join(dir, "missing-folder");
+    const run = runCli(["report", "specs/cnn-batchnorm.yaml", "-o", join(missing, "x.html")]);
     expect(run.status).toBe(2);
-    expect(run.stderr).toMatch(/cannot write the report \(ENOENT\)/);
+    expect(run.stderr).toBe(`headroom: ${join(missing, "x.html")}: cannot write the report: the folder ${missing} does not exist\n`);
+  });
+
+  test("a folder as the target is an input error that asks for a file name", () => {
+    const run = runCli(["report", "specs/deep-sigmoid.yaml", "-o", dir]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toBe(`headroom: ${dir}: cannot write the report: it is a folder; give a file name, such as report.html\n`);
+    // the temporary file beside the target (in its parent folder) is gone too
+    expect(readdirSync(dirname(dir)).filter((name) => name.startsWith(`.${basename(dir)}.`))).toEqual([]);
   });
 });
 
