@@ -34,6 +34,11 @@ export function parseValue(text: string): { value: number } | { error: string } 
     if (!Number.isFinite(value)) {
       return { error: `${trimmed} is beyond binary64's range (largest finite ${show(Number.MAX_VALUE)}), where values are read first; give inf for infinity` };
     }
+    // likewise at the bottom: a nonzero decimal below half binary64's smallest subnormal 2^-1074 reads as 0 (IEEE 754-2019
+    // §4.3.1), and its rounding would show an exact zero with no error at all
+    if (value === 0 && /[1-9]/.test(trimmed.replace(/e.*$/i, ""))) {
+      return { error: `${trimmed} is below binary64's range (smallest subnormal ${show(Number.MIN_VALUE)}), where values are read first, and would read as 0; give 0 for zero` };
+    }
     return { value };
   }
   const special = SPECIAL.exec(trimmed);

@@ -245,3 +245,16 @@ describe("round: a decimal past binary64's range", () => {
     expect(runCli(["round", "1.7976931348623157e308", "--to", "binary16"]).status).toBe(0);
   });
 });
+
+describe("round: a nonzero decimal below binary64's range", () => {
+  // binary64's smallest subnormal is 2^-1074 ≈ 4.9406564584124654e-324 (IEEE 754-2019 §3.6); below half of it a decimal
+  // reads as 0 (§4.3.1), so 1e-400 would be shown as rounding to 0 with an error of 0
+  it("is refused with exit code 2, naming the range; zeros and the smallest subnormal are still accepted", () => {
+    const run = runCli(["round", "1e-400", "--to", "binary16"]);
+    expect(run.status).toBe(2);
+    expect(run.stdout).toBe("");
+    expect(run.stderr).toContain("1e-400 is below binary64's range (smallest subnormal 5e-324)");
+    expect(runCli(["round", "-2e-324", "--to", "binary16"]).status).toBe(2);
+    for (const accepted of ["0", "-0.000", "0e-500", "5e-324", "3e-324"]) expect(runCli(["round", accepted, "--to", "binary16"]).status).toBe(0);
+  });
+});
