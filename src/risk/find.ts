@@ -43,6 +43,9 @@ export function findTensor(tensors: readonly TensorCheck[], query: string, limit
         (suffix === undefined || tensor.id.endsWith(`:${suffix}`)),
     );
     if (matches.length === 1) return { ok: true, tensor: matches[0] as TensorCheck };
+    // "layer role" is the id "layer/role" written as two words: that id wins over the role's `:name` tensors
+    const plain = suffix === undefined ? matches.find((tensor) => tensor.id === `${layer}/${role}`) : undefined;
+    if (plain !== undefined) return { ok: true, tensor: plain };
     if (matches.length > 1) return { ok: false, reason: "ambiguous", candidates: matches.map((t) => t.id).slice(0, limit * 4) };
   }
 

@@ -24,6 +24,16 @@ describe("headroom explain (the built binary)", () => {
     expect(run.stdout).toMatch(/^headroom explain: chain\.0\.dense-0\/activation-gradient/);
   });
 
+  it("takes a layer and a role as two words when the layer has further tensors of that role (README: `layer/role` as two words)", () => {
+    // the output layer of a cross-entropy loss has its activation gradient and the target-class part of it
+    const run = runCli(["explain", "specs/wide-classifier.yaml", "species", "activation-gradient"]);
+    expect(run.stderr).toBe("");
+    expect(run.status).toBe(0);
+    expect(run.stdout).toMatch(/^headroom explain: species\/activation-gradient \(/);
+    const named = runCli(["explain", "specs/wide-classifier.yaml", "species", "activation-gradient:target-class"]);
+    expect(named.stdout).toMatch(/^headroom explain: species\/activation-gradient:target-class \(/);
+  });
+
   it("a layer with several tensors lists their ids (exit code 2, no stack trace)", () => {
     const run = runCli(["explain", CHAIN, "chain.0.dense-0"]);
     expect(run.status).toBe(2);
