@@ -17,8 +17,11 @@ const SEVERITY_RANK: Record<Finding["severity"], number> = { fails: 0, "at-risk"
 // kinds whose value is better when larger (binades of headroom); the others are worse when larger
 const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set(["little-headroom"]);
 
+// on a tie of values the subject first in text order names the group, as the lists of findings worst first
+// (report/summary.ts compareFindings: Markdown, HTML, batch rows) put it, so every output names the same tensor
 function worse(a: Finding, b: Finding): Finding {
   if (a.severity !== b.severity) return SEVERITY_RANK[a.severity] < SEVERITY_RANK[b.severity] ? a : b;
+  if (a.value === b.value) return b.subject < a.subject ? b : a;
   const aWorse = LARGER_IS_BETTER.has(a.kind) ? a.value < b.value : a.value > b.value;
   return aWorse ? a : b;
 }
