@@ -8,7 +8,8 @@
  * and elements far below their block's maximum flush to zero. The clamp belongs to the block conversion itself
  * (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, "clamping normal numbers", from memory), so that bounded clip is
  * no overflow under either overflow mode; only a block whose scale would pass E8M0's largest, 2^127, leaves its
- * maximum beyond the element range by more than that clip.
+ * maximum beyond the element range by more than that clip. At the other end a block whose scale would fall below
+ * E8M0's smallest, 2^-127, keeps 2^-127 and flushes below 2^-127 times the element format's flush bound.
  */
 import type { Format } from "../formats/index.js";
 import { normalCdf, normalPdf } from "../numeric/index.js";
@@ -27,10 +28,14 @@ export interface BlockScaledRisk {
    * is clamped to 2^127 and they land at 2^(emax+1) or more, past the element range (overflow, or saturation)
    */
   scaleClampLevel: number;
+  /** E8M0's smallest scale, 2^-127: a block whose maximum needs a smaller one keeps this, and flushes below 2^-127 times the element flush bound */
+  smallestScale: number;
 }
 
 /** The largest shared exponent an E8M0 scale holds: 2^(254 − 127) (OCP MX v1.0, the E8M0 scale; SCIENCE.md §1.4). */
 const E8M0_MAX_EXPONENT = 127;
+/** The smallest: 2^(0 − 127) (the same source). */
+const E8M0_MIN_EXPONENT = -127;
 
 /**
  * Analytic block-scaled conversion of Gaussian-like elements (the scale of the tensor cancels: each block's scale
@@ -51,6 +56,7 @@ export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flu
     flushedEnergy: (sums[2] as number) / mass / totalEnergy,
     clippedFraction: (sums[1] as number) / mass / n,
     scaleClampLevel: 2 ** (E8M0_MAX_EXPONENT + format.emax + 1),
+    smallestScale: 2 ** E8M0_MIN_EXPONENT,
   };
 }
 

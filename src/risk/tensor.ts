@@ -5,6 +5,8 @@
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
 import {
+  energyBelow,
+  fractionBelow,
   probabilityAnyAbove,
   profileRisk,
   profileStatistics,
@@ -218,11 +220,14 @@ function evaluate(
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts).
   // The block conversion clamps a scaled element to ± the largest normal (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1,
   // from memory), so the top of a block's binade is clipped by at most 2^(emax+1)/max under either overflow mode; an
-  // element leaves the element range only where its block's scale is clamped at E8M0's 2^127
+  // element leaves the element range only where its block's scale is clamped at E8M0's 2^127. Below, a scale clamped at
+  // 2^-127 flushes every element under 2^-127 times the flush bound, whatever its block: the larger of the two causes
+  // (a lower bound on their union, equal to it where either dominates)
+  const floorLevel = block.smallestScale * limits.flushBound;
   return {
-    flushedFraction: Math.min(risk.flushedFraction, block.flushedFraction),
+    flushedFraction: Math.max(Math.min(risk.flushedFraction, block.flushedFraction), fractionBelow(scaled, floorLevel)),
     subnormalFraction: risk.subnormalFraction,
-    flushedEnergy: Math.min(risk.flushedEnergy, block.flushedEnergy),
+    flushedEnergy: Math.max(Math.min(risk.flushedEnergy, block.flushedEnergy), energyBelow(scaled, floorLevel)),
     overflowRisk: probabilityAnyAbove(scaled, block.scaleClampLevel),
     headroom: risk.headroom,
     footroom: risk.footroom,

@@ -138,12 +138,13 @@ function blockJudged(t: TensorPrediction, limits: RangeLimits) {
 // The conversion of one block (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4): the
 // shared exponent ⌊log2 max|V|⌋ − emax, clamped to the E8M0 range 2^-127 … 2^127 [S]; each element clamped to ± the
 // largest normal while the scale follows the block's maximum. Past E8M0's largest scale the maximum lands at
-// 2^(emax+1) or more, beyond the element range, and the plan's overflow mode decides.
+// 2^(emax+1) or more, beyond the element range, and the plan's overflow mode decides; below its smallest the scale
+// stays at 2^-127 and small elements flush.
 function convertBlock(block: Float64Array, format: (typeof FORMATS)["e4m3"], overflow: "saturate" | "infinity-or-nan"): Float64Array {
   let max = 0;
   for (const v of block) max = Math.max(max, Math.abs(v));
   const shared = Math.floor(Math.log2(max)) - format.emax;
-  const X = 2 ** Math.min(127, shared);
+  const X = 2 ** Math.max(-127, Math.min(127, shared));
   return block.map((v) => roundTo(format, v / X, { overflow: shared > 127 ? overflow : "saturate" }));
 }
 
@@ -213,5 +214,31 @@ describe("overflow with per-block scale factors", () => {
       expect(blockJudged(activation({ rms: level * 16 }), nan).worst.overflowRisk).toBeGreaterThan(0.99);
       expect(blockJudged(activation({ rms: level * 2 ** -16 }), nan).worst.overflowRisk).toBeLessThan(1e-12);
     }
+  });
+
+  it("flushes below 2^-127 times the element flush bound where a block's scale is clamped at E8M0's smallest", () => {
+    // e4m3, rms 2^-125: a block's maximum of 32 normals lies near 2^-124, so its shared exponent would be about −132
+    // and stays at −127; elements at or below 2^-127 · 2^-10 = 2^-137, i.e. |Z| ≤ 2^-12, flush: about 0.798 · 2^-12
+    // (P(|Z| ≤ t) ≈ √(2/π)·t for small t, SCIENCE.md §4), against the block rule's 5.4e-6 where the scale follows
+    const rms = 2 ** -125;
+    const random = createRandom(31);
+    const block = new Float64Array(32);
+    let flushed = 0;
+    const blocks = 50_000;
+    for (let b = 0; b < blocks; b++) {
+      random.fillNormal(block);
+      for (let i = 0; i < 32; i++) block[i] = (block[i] as number) * rms;
+      const stored = convertBlock(block, FORMATS.e4m3, "infinity-or-nan");
+      for (let i = 0; i < 32; i++) if (stored[i] === 0 && block[i] !== 0) flushed++;
+    }
+    const measured = flushed / (32 * blocks); // about 310 of 1.6 million: a standard error near 6%
+    const risk = blockJudged(activation({ rms }), E4M3_NAN);
+    expect(Math.abs(risk.worst.flushedFraction - measured)).toBeLessThan(0.2 * measured);
+    expect(risk.worst.flushedFraction).toBeCloseTo(Math.sqrt(2 / Math.PI) * 2 ** -12, 5);
+    // e5m2 at rms 2^-118: the shared exponent would be about −132 as well; flushed at or below 2^-127 · 2^-17, |Z| ≤ 2^-26
+    const e5m2 = blockJudged(activation({ rms: 2 ** -118 }), E5M2_INFINITY);
+    expect(e5m2.worst.flushedFraction / (Math.sqrt(2 / Math.PI) * 2 ** -26)).toBeCloseTo(1, 3);
+    // where the scale follows the block (rms 1), the block rule's share stands
+    expect(blockJudged(activation({ rms: 1 }), E4M3_NAN).worst.flushedFraction).toBe(blockScaledRisk(FORMATS.e4m3).flushedFraction);
   });
 });
