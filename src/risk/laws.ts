@@ -1378,8 +1378,9 @@ function fitStepOf(n: number): void {
 // in ln n (Abramowitz & Stegun 25.2.15 for the error term; the remainder at a node is smooth in ln n, and the sums stay
 // within 1e-6 of the converged reference, test/risk/any-above.test.ts): every count a check meets shares a handful of
 // rows. Fewer elements take a row of their own count. Rows live in an open-addressing table on (law, share, element
-// spread, count or −k), cleared when three quarters full, each holding the nodes |ξ| ≤ 4 (NaN: not yet computed;
-// the few sums that reach further compute their outer nodes afresh) and its count's fitted step. A table of a
+// spread, count or −k), cleared when three quarters full, each holding the nodes |ξ| ≤ 4 (NaN: not yet computed; a
+// grid row is computed whole when first picked; the few sums that reach further compute their outer nodes afresh) and
+// its count's fitted step. A table of a
 // mathematical function: its values never depend on what the process computed before.
 const REMAINDER_SLOTS = 1024;
 const REMAINDER_LIMIT = (REMAINDER_SLOTS >> 2) * 3;
@@ -1388,6 +1389,8 @@ const REMAINDER_KEYS = new Float64Array(REMAINDER_SLOTS * 4).fill(NaN);
 // per slot: the row's count, v½, σ_v and A
 const REMAINDER_FITS = new Float64Array(REMAINDER_SLOTS * 4);
 const REMAINDER_ROWS: Float64Array[] = [];
+// per slot: 1 once every node |ξ| ≤ 4 of the row is computed (fillRow)
+const REMAINDER_FULL = new Uint8Array(REMAINDER_SLOTS);
 // per slot: the row's shifts of the first four moments of the step's law (see rowMoments); NaN: not yet taken
 const REMAINDER_MOMENTS = new Float64Array(REMAINDER_SLOTS * 4).fill(NaN);
 const REMAINDER_KEY = new Float64Array(4);
@@ -1434,6 +1437,7 @@ function rowSlot(countKey: number, n: number): number {
   }
   row.fill(NaN);
   REMAINDER_MOMENTS.fill(NaN, slot * 4, slot * 4 + 4);
+  REMAINDER_FULL[slot] = 0;
   // the row's own fitted step, keeping the current one
   const half = FIT[1] as number;
   const width = FIT[2] as number;
@@ -1452,12 +1456,11 @@ function rowSlot(countKey: number, n: number): number {
 function remainderRow(): void {
   const n = integrandCount;
   const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
-  if (COMBINED_KEY[0] === integrandLaw && COMBINED_KEY[1] === integrandShare && COMBINED_KEY[2] === n && COMBINED_KEY[3] === elementSpread && combinedRows === remainderCount + remainderClears * REMAINDER_SLOTS) return;
-  COMBINED.fill(NaN);
-  COMBINED_KEY[0] = integrandLaw;
-  COMBINED_KEY[1] = integrandShare;
-  COMBINED_KEY[2] = n;
-  COMBINED_KEY[3] = elementSpread;
+  if (COUNT_KEY[0] === integrandLaw && COUNT_KEY[1] === integrandShare && COUNT_KEY[2] === n && COUNT_KEY[3] === elementSpread && countRows === remainderCount + remainderClears * REMAINDER_SLOTS) return;
+  COUNT_KEY[0] = integrandLaw;
+  COUNT_KEY[1] = integrandShare;
+  COUNT_KEY[2] = n;
+  COUNT_KEY[3] = elementSpread;
   if (n >= GRID_COUNT) {
     const position = Math.log(n) * GRID_PER_LN;
     const first = Math.floor(position) - 1;
@@ -1484,6 +1487,7 @@ function remainderRow(): void {
         continue;
       }
       ROW_SLOTS[k] = slot;
+      fillRow(slot);
     }
     rowCount = 4;
     GRID_KEY[0] = integrandLaw;
@@ -1502,15 +1506,15 @@ function remainderRow(): void {
   row1 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[1] as number] as Float64Array) : row0;
   row2 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[2] as number] as Float64Array) : row0;
   row3 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[3] as number] as Float64Array) : row0;
-  combinedRows = remainderCount + remainderClears * REMAINDER_SLOTS;
+  countRows = remainderCount + remainderClears * REMAINDER_SLOTS;
 }
-// the key of COMBINED, and the table's state when it was made (a row made or the table cleared since may have taken a
-// slot of its rows)
-const COMBINED_KEY = new Float64Array(4).fill(NaN);
+// the law and count whose rows ROW_SLOTS holds, and the table's state when they were picked (a row made or the table
+// cleared since may have taken a slot of its rows)
+const COUNT_KEY = new Float64Array(4).fill(NaN);
 // the law and first grid row of ROW_SLOTS when they are grid rows, and the table's state then
 const GRID_KEY = new Float64Array(4).fill(NaN);
 let gridRows = -1;
-let combinedRows = -1;
+let countRows = -1;
 let remainderClears = 0;
 // the remainder of row r (slot `slot`) at node j
 function rowValue(row: Float64Array, slot: number, j: number): number {
@@ -1527,6 +1531,13 @@ function rowValue(row: Float64Array, slot: number, j: number): number {
     if (inside) row[at] = value;
   }
   return value;
+}
+// compute every node |ξ| ≤ 4 of the row in `slot` not yet computed
+function fillRow(slot: number): void {
+  if (REMAINDER_FULL[slot] === 1) return;
+  const row = REMAINDER_ROWS[slot] as Float64Array;
+  for (let j = -REMAINDER_HALF; j <= REMAINDER_HALF; j++) rowValue(row, slot, j);
+  REMAINDER_FULL[slot] = 1;
 }
 // The step g/A is the survival function of a law: P(V > v) = g(v)/A, V the level of the largest of the n elements
 // (in binades from the scale), so I(x) = A·P(V + s·Z > x). In units of the fitted step, W = (V − v½)/σ_v survives
@@ -1616,23 +1627,26 @@ export function stepLawMoments(profile: MagnitudeProfile): [number, number, numb
   return [(FIT[1] as number) + (MOMENTS[0] as number), MOMENTS[1] as number, MOMENTS[2] as number, MOMENTS[3] as number];
 }
 
-// the interpolated remainders of the current count, kept while the count stays (its sums at several thresholds and
-// a level search's steps share them); NaN: not yet combined
-const COMBINED = new Float64Array(2 * REMAINDER_HALF + 1);
+// The interpolated remainders of the current count at node j. A count meets its grid rows for a few sums only (the
+// counts of a check's tensors differ), so the grid rows are filled whole when picked (fillRow: once per row and
+// process) and each node is combined as it is read, with no check for a missing value.
 function remainderAt(j: number): number {
   if (rowCount === 1) return rowValue(row0, ROW_SLOTS[0] as number, j);
   const at = j + REMAINDER_HALF;
-  const inside = at >= 0 && at <= 2 * REMAINDER_HALF;
-  let value = inside ? (COMBINED[at] as number) : NaN;
-  if (value !== value) {
-    value =
-      (ROW_WEIGHTS[0] as number) * rowValue(row0, ROW_SLOTS[0] as number, j) +
-      (ROW_WEIGHTS[1] as number) * rowValue(row1, ROW_SLOTS[1] as number, j) +
-      (ROW_WEIGHTS[2] as number) * rowValue(row2, ROW_SLOTS[2] as number, j) +
-      (ROW_WEIGHTS[3] as number) * rowValue(row3, ROW_SLOTS[3] as number, j);
-    if (inside) COMBINED[at] = value;
+  if (at >= 0 && at <= 2 * REMAINDER_HALF) {
+    return (
+      (ROW_WEIGHTS[0] as number) * (row0[at] as number) +
+      (ROW_WEIGHTS[1] as number) * (row1[at] as number) +
+      (ROW_WEIGHTS[2] as number) * (row2[at] as number) +
+      (ROW_WEIGHTS[3] as number) * (row3[at] as number)
+    );
   }
-  return value;
+  return (
+    (ROW_WEIGHTS[0] as number) * rowValue(row0, ROW_SLOTS[0] as number, j) +
+    (ROW_WEIGHTS[1] as number) * rowValue(row1, ROW_SLOTS[1] as number, j) +
+    (ROW_WEIGHTS[2] as number) * rowValue(row2, ROW_SLOTS[2] as number, j) +
+    (ROW_WEIGHTS[3] as number) * rowValue(row3, ROW_SLOTS[3] as number, j)
+  );
 }
 
 // terms below this share of the sum end the walk outward and are not refined
