@@ -7,7 +7,20 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { GatedFeedForwardLayer } from "../../spec/types.js";
-import { NO_FACTORS, SOURCES, factor, fmt, gradientSum, linearGradient, linearOutput, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import {
+  NO_FACTORS,
+  SOURCES,
+  crossCorrelationOf,
+  factor,
+  fmt,
+  gradientSum,
+  linearGradient,
+  linearOutput,
+  positionCorrelationOf,
+  sampleCorrelationOf,
+  sharedOf,
+  weightOf,
+} from "../common.js";
 import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
@@ -26,6 +39,8 @@ export interface GatedStash {
   gateZeroFraction: number;
   /** two positions of one sample: E[φ(g)φ(g')] and E[φ'(g)φ'(g')] at the input's position correlation c, and c */
   positionCross: { value: number; derivative: number; correlation: number };
+  /** two samples (at one position or two): the same at the input's sample correlation */
+  sampleCross: { value: number; derivative: number; correlation: number };
 }
 
 function slopeOf(spec: GatedFeedForwardLayer): number {
@@ -59,9 +74,15 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     up.positionCorrelation = correlation;
     const crossed = crossMoments(spec.activation, slopeOf(spec), gate.q, correlation, m);
     const positionCross = { value: crossed.value, derivative: crossed.derivative, correlation };
+    // two samples' gates are correlated by c_s = shared/q at every pair of positions (a signal's cross-sample part is
+    // the same at all positions), so the product's cross-sample moment is E[φ(g_n)φ(g_m)]·E[u_n u_m] (gate and up
+    // independent: own algebra), not E[φ]²·E[u_n u_m], which holds only at c_s = 0
+    const sampleCorrelation = sampleCorrelationOf(gate);
+    const sampleCrossed = crossMoments(spec.activation, slopeOf(spec), gate.q, sampleCorrelation, m);
+    const sampleCross = { value: sampleCrossed.value, derivative: sampleCrossed.derivative, correlation: sampleCorrelation };
     const product: Signal = {
       q: m.second * up.q,
-      shared: m.mean * m.mean * (up.shared ?? 0),
+      shared: sampleCross.value * (up.shared ?? 0),
       mean: 0,
       zeroFraction: m.zeroFraction,
       shape: "gaussian",
@@ -116,6 +137,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
         gateDerivativeSecond: m.derivativeSecond,
         gateZeroFraction: m.zeroFraction,
         positionCross,
+        sampleCross,
       },
     };
   },
@@ -131,13 +153,34 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     // two positions: δ_up shares E[φ(g)φ(g')]·(δ_h's share), δ_gate E[φ'(g)φ'(g')]·c·E[u²]·(δ_h's share)
     const hShare = positionCorrelationOf(output);
     productGradient.positionCorrelation = hShare;
+    // W_downᵀ is the same for every sample and position: two samples' gradients keep what they share, at one position
+    // or two (as dense's backward)
+    if (output.shared !== undefined) productGradient.shared = downGain * output.shared;
+    if (output.crossCorrelation !== undefined) productGradient.crossCorrelation = output.crossCorrelation;
+    const hSample = sampleCorrelationOf(productGradient);
+    const hCross = crossCorrelationOf(productGradient);
     const cross = stash.positionCross;
+    const samples = stash.sampleCross;
     const upGradient: Gradient = { q: upQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     upGradient.positionCorrelation = stash.gateSecond > 0 ? Math.min((cross.value * hShare) / stash.gateSecond, 1) : 0;
     gateGradient.positionCorrelation = stash.gateDerivativeSecond > 0 ? Math.min((cross.derivative * cross.correlation * hShare) / stash.gateDerivativeSecond, 1) : 0;
-    const gatePart = ctx.variance(wg) * wg.fanOut * gateQ;
-    const upPart = ctx.variance(wu) * wu.fanOut * upQ;
+    // two samples, at one position or two: δ_up pairs share E[φ(g)φ(g')]·E[δ_h δ_h'], δ_gate pairs
+    // E[φ'(g)φ'(g')]·c_s·E[u²]·E[δ_h δ_h'], the forward pair taken at the sample correlation c_s (a signal's
+    // cross-sample part is the same at every pair of positions) and independent of the gradient (own algebra, with
+    // the gradient independence of Schoenholz et al. 2017)
+    const upPair = samples.value / Math.max(stash.gateSecond, 1e-300);
+    const gatePair = (samples.derivative * samples.correlation) / Math.max(stash.gateDerivativeSecond, 1e-300);
+    if (productGradient.shared !== undefined) {
+      upGradient.shared = upPair * hSample * upQ;
+      gateGradient.shared = gatePair * hSample * gateQ;
+    }
+    upGradient.crossCorrelation = stash.gateSecond > 0 ? Math.min(upPair * hCross, 1) : 0;
+    gateGradient.crossCorrelation = stash.gateDerivativeSecond > 0 ? Math.min(gatePair * hCross, 1) : 0;
+    const gateMap = ctx.variance(wg) * wg.fanOut;
+    const upMap = ctx.variance(wu) * wu.fanOut;
+    const gatePart = gateMap * gateQ;
+    const upPart = upMap * upQ;
     const inputQ = gatePart + upPart;
     const ratio = productGradient.q > 0 ? inputQ / productGradient.q : 0;
     const ledger = ctx.ledger ? backwardLedger(stash, downGain, ratio) : undefined;
@@ -164,6 +207,10 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     });
     const input = linearGradient(inputQ, productGradient.logVar, D);
     input.positionCorrelation = inputQ > 0 ? (gatePart * (gateGradient.positionCorrelation ?? 0) + upPart * (upGradient.positionCorrelation ?? 0)) / inputQ : 0;
+    // δ_x = W_gateᵀ δ_gate + W_upᵀ δ_up: the pair moments of the two paths add, as their second moments do (own algebra:
+    // W_gate and W_up are independent, so the terms that pair one path with the other average to zero)
+    if (productGradient.shared !== undefined) input.shared = gateMap * (gateGradient.shared ?? 0) + upMap * (upGradient.shared ?? 0);
+    input.crossCorrelation = inputQ > 0 ? (gatePart * (gateGradient.crossCorrelation ?? 0) + upPart * (upGradient.crossCorrelation ?? 0)) / inputQ : 0;
     return {
       input,
       factors: ledger?.input ?? NO_FACTORS,
