@@ -10,13 +10,15 @@
  *   output = o·W_o (H·d → D).
  * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²]·(1 − ρ_v): it removes
  * the part of the values all positions share. The query and key gradients carry Σ_j p_j², so they are small while
- * attention is spread out; the query gradient sums δ_s·k over keys, where the keys' shared part cancels too (1 − ρ_k).
+ * attention is spread out; the query gradient sums δ_s·k over keys, where the keys' shared part cancels too (1 − ρ_k),
+ * and pairs of keys add 1/D through the weights they share (D the input width).
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { AttentionLayer } from "../../spec/types.js";
 import {
   NO_FACTORS,
   SOURCES,
+  crossCorrelationOf,
   factor,
   fmt,
   gradientSum,
@@ -24,6 +26,7 @@ import {
   linearGradient,
   linearOutput,
   positionCorrelationOf,
+  sampleCorrelationOf,
   sharedOf,
   sumLogVar,
   weightOf,
@@ -104,6 +107,27 @@ function causalRowLog2Variance(positions: number): number {
   const variance = Math.max(m2 - m1 * m1, 0);
   rowLengthCache.set(positions, variance);
   return variance;
+}
+
+const columnCache = new Map<number, number>();
+
+/**
+ * Mean over keys j of a_j², a_j = Σ_i E[p_ij] the expected weight key j gets from all rows: 1 under full attention;
+ * under a causal mask E[p_ij] = 1/i for j ≤ i (the i keys of row i are exchangeable), so a_j = H_P − H_(j−1).
+ * Memoised by P.
+ */
+function causalColumnSquares(positions: number): number {
+  const hit = columnCache.get(positions);
+  if (hit !== undefined) return hit;
+  let a = 0;
+  let sum = 0;
+  for (let j = positions; j >= 1; j--) {
+    a += 1 / j;
+    sum += a * a;
+  }
+  const mean = positions > 0 ? sum / positions : 0;
+  columnCache.set(positions, mean);
+  return mean;
 }
 
 /** Row sums of E[p²] for P positions at logit variance s2, full or causal. */
@@ -332,6 +356,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const headsQ = outGain * output.q;
     const heads = linearGradient(headsQ, output.logVar, inner);
     heads.positionCorrelation = positionCorrelationOf(output);
+    // W_oᵀ is the same for every sample and position: two samples' gradients keep what they share (as dense's backward)
+    if (output.shared !== undefined) heads.shared = outGain * output.shared;
+    if (output.crossCorrelation !== undefined) heads.crossCorrelation = output.crossCorrelation;
     // δv_j = Σ_i p_ij·δo_i: an average over rows, like the forward one
     const headsPositionShared = headsQ * heads.positionCorrelation;
     const valueQ = positionAverage(headsQ, headsPositionShared, stash.rows.sumSquares);
@@ -341,11 +368,44 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const valueApart = 1 - positionCorrelationOf(stash.value);
     const keyApart = 1 - positionCorrelationOf(stash.key);
     const logitQ = stash.rows.elementSecond * probQ * unmaskedShare * valueApart;
-    const queryQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
+    // δq_i = c·Σ_j p_ij·(δo_i·ṽ_j)·k̃_j over the deviations ṽ, k̃ (what positions share cancels). With W_v and W_k the same
+    // for every key, two keys j ≠ j' pair through (x̃_j·x̃_j')², of mean D·E[x̃²]² for an input of width D: besides the
+    // Σ_j p_ij² of independent keys, every pair of keys adds 1/D, and so do the pairs of two samples, which share
+    // δo_n·δo_m (own algebra)
+    const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
+    const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
+    const queryCoherent = queryScale / inWidth;
+    const queryQ = stash.rows.sumSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
     const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
     const valueGradient: Gradient = { q: valueQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: valuePositionCorrelation };
+    // two samples: every row of p sums to 1, so Σ_j δv_j = Σ_i δo_i in each sample and the pairs of two samples keep
+    // their total T = E[δo²]·P·(ρ_sample + (P − 1)·ρ_cross) (exact). Two samples' attention being independent,
+    // E[p_n,ij·p_m,i'j'] = E[p_ij]·E[p_i'j'] = e_ij·e_i'j', so one key j of two samples shares
+    // E[δo²]·(ρ_cross·a_j² + (ρ_sample − ρ_cross)·Σ_i e_ij²) with a_j = Σ_i e_ij; on average over keys
+    // ρ_cross·mean(a_j²) + (ρ_sample − ρ_cross)·mean over rows of Σ_j e_ij² (1 and 1/P with full attention, where
+    // e_ij = 1/P; H_P/P causal), and two keys the rest of T (own algebra)
+    const headsSample = sampleCorrelationOf(heads);
+    const headsCross = crossCorrelationOf(heads);
+    const pairTotal = headsQ * P * (headsSample + (P - 1) * headsCross);
+    const columnSquares = spec.causal ? causalColumnSquares(P) : 1;
+    const rowSquares = P > 0 ? (spec.causal ? harmonic(P) : 1) / P : 0;
+    const valueSamplePair = headsQ * (headsCross * columnSquares + (headsSample - headsCross) * rowSquares);
+    const valueCrossPair = P > 1 ? (pairTotal - P * valueSamplePair) / (P * (P - 1)) : valueSamplePair;
+    if (valueSamplePair !== 0) valueGradient.shared = valueSamplePair;
+    valueGradient.crossCorrelation = valueQ > 0 ? valueCrossPair / valueQ : 0;
+    // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
+    // key j's own value deviation, independent between keys. Both are sums of δo·(v_j − Σ_l p_il v_l), where the part
+    // of the values two samples share cancels. Two samples' query gradients still pair through the shared W_v and W_k,
+    // by the 1/D term above times what their δo share; their key gradients pair through two different dot products
+    // x̃_n,j·x̃_m,j and x̃_n,i·x̃_m,i', of mean 0, so they share nothing (own algebra)
+    const queryGradient: Gradient = { q: queryQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: heads.positionCorrelation ?? 0 };
+    const querySamplePair = queryCoherent * headsSample;
+    const queryCrossPair = queryCoherent * headsCross;
+    if (querySamplePair !== 0) queryGradient.shared = querySamplePair;
+    queryGradient.crossCorrelation = queryQ > 0 ? queryCrossPair / queryQ : 0;
+    const keyGradient: Gradient = { q: keyQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: 0 };
     const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
     const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
     const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
@@ -358,7 +418,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         () => `softmax Jacobian: E[p²]·(1 − ρ_v) = ${fmt(stash.rows.elementSecond)}·${fmt(valueApart)}`,
         valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
       );
-      const queryFactor = factor(queryQ / Math.max(headsQ, 1e-300), () => `attention query: Σp²·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))}`, SOURCE);
+      const queryFactor = factor(
+        queryQ / Math.max(headsQ, 1e-300),
+        () => `attention query: (Σp² + (1 − Σp²)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
+        SOURCE,
+      );
       const keyFactor = factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE);
       const valueFactor = factor(headsQ > 0 ? valueQ / headsQ : 0, () => `attention value: Σ_i p_ij² + ρ·(1 − Σ_i p_ij²) = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}`, AVERAGE_SOURCE);
       const inputFactor = factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward);
@@ -387,14 +451,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         suffix: "query",
         shape: projection,
         elements: projectionElements,
-        gradient: g(queryQ),
+        gradient: queryGradient,
         factors: ledger?.query ?? NO_FACTORS,
       },
       {
         suffix: "key",
         shape: projection,
         elements: projectionElements,
-        gradient: g(keyQ),
+        gradient: keyGradient,
         factors: ledger?.key ?? NO_FACTORS,
       },
       {
@@ -406,10 +470,6 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       },
     ];
     const N = ctx.batch * P;
-    // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
-    // key j's own value deviation, independent between keys
-    const queryGradient: Gradient = { q: queryQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: heads.positionCorrelation ?? 0 };
-    const keyGradient: Gradient = { q: keyQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: 0 };
     const wg = (weight: string, x: Signal, delta: Gradient, logVar: number): WeightGradientMoment => ({
       weight,
       q: gradientSum(ctx.batch, P, delta, x),
@@ -422,6 +482,13 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const D = layer.input.layout === "features" ? layer.input.features : 1;
     const input = linearGradient(inputQ, heads.logVar, D);
     input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
+    // what two samples share reaches the input by the value and query paths (the key gradients share nothing across
+    // samples); W_vᵀ and W_qᵀ keep their pair moments, and the independent W_v, W_q leave no pairs between the paths
+    // (own algebra)
+    const valueMap = ctx.variance(wv) * wv.fanOut;
+    const queryMap = ctx.variance(wq) * wq.fanOut;
+    input.shared = valueMap * valueSamplePair + queryMap * querySamplePair;
+    input.crossCorrelation = inputQ > 0 ? (valueMap * valueCrossPair + queryMap * queryCrossPair) / inputQ : 0;
     return {
       input,
       factors: ledger?.input ?? NO_FACTORS,
