@@ -332,7 +332,15 @@ function ledgerSection(ledger: ReportLedger | null): string {
   return (
     `<p>The predicted size of <code>${e(ledger.subject)}</code> is a product of one factor per layer (the chain rule). ` +
     `Each bar is one factor in binades: to the right it grows the tensor, to the left it shrinks it. ` +
-    `They add up to ${e(signed(running))} binades; the tensor's rms is ${powerHtml(round1(ledger.rmsLog2))}.</p>` +
+    `They add up to ${e(signed(running))} binades: the tensor's rms at the start of training is ${powerHtml(round1(ledger.rmsLog2))}` +
+    // the ledger is the start's; a finding at the end of the horizon, or after the loss scale, is about another size
+    (Number.isFinite(ledger.endRmsLog2) && round1(ledger.endRmsLog2) !== round1(ledger.rmsLog2)
+      ? `, and ${powerHtml(round1(ledger.endRmsLog2))} at the end of the horizon`
+      : "") +
+    (ledger.scaleLog2 !== 0 && Number.isFinite(ledger.scaleLog2)
+      ? `; the check multiplies it by the loss scale ${powerHtml(round1(ledger.scaleLog2))} before judging it`
+      : "") +
+    `.</p>` +
     `<figure class="chart-frame"><div class="scroll">${svg}</div></figure>` +
     `<div class="scroll"><table><thead><tr><th>layer</th><th>rule</th><th class="num">binades</th><th>source</th></tr></thead><tbody>${rows}</tbody></table></div>`
   );

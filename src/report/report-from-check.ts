@@ -140,6 +140,8 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
       ? {
           subject: ledgerTensor.id,
           rmsLog2: log2(ledgerTensor.start.rms),
+          endRmsLog2: log2(ledgerTensor.end.rms),
+          scaleLog2: log2(ledgerTensor.statistics.factor),
           steps: ledgerTensor.ledger.map((entry) => ({ layer: entry.layer, rule: entry.rule, log2Factor: entry.log2Factor, source: entry.source })),
         }
       : null,

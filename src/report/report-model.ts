@@ -60,8 +60,12 @@ export interface ReportLedgerStep {
 export interface ReportLedger {
   /** the tensor the ledger explains */
   subject: string;
-  /** log2 of the tensor's rms, which the factors add up to (with the seed) */
+  /** log2 of the tensor's rms at the start of training, which the factors add up to (with the seed) */
   rmsLog2: number;
+  /** log2 of its rms at the end of the horizon (where a finding "at the end of the horizon" is judged) */
+  endRmsLog2: number;
+  /** log2 of the loss scale the check multiplies the tensor by before judging it (0: none, or a forward tensor) */
+  scaleLog2: number;
   steps: ReportLedgerStep[];
 }
 

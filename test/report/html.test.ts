@@ -200,3 +200,43 @@ describe("the loss-scale section of a check with no static scale", () => {
     });
   });
 });
+
+describe("the ledger's sentence says which size the factors add up to", () => {
+  test("the rms at the start, the end of the horizon's when it differs, and the loss scale the check applies", () => {
+    const html = renderHtmlReport(demoModel("fc"));
+    expect(html).toContain(
+      "the tensor's rms at the start of training is 2<sup>-17</sup>, and 2<sup>-19</sup> at the end of the horizon; " +
+        "the check multiplies it by the loss scale 2<sup>9</sup> before judging it.</p>",
+    );
+  });
+
+  test("from a check whose worst tensor is judged at the end of the horizon", async () => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { parseSpec } = await import("../../src/spec/index.js");
+    // an invented 8-bit plan without scale factors: the output gradient shrinks as the loss falls to 0.05 and flushes
+    const parsed = parseSpec(
+      [
+        "name: parcel-sorter",
+        "input: { features: 128 }",
+        "training: { batch: 256, loss: { kind: cross-entropy, classes: 12 }, horizon: { steps: 30000, final-loss: 0.05, weight-growth: 3 } }",
+        "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: none }",
+        "layers: [{ type: dense, width: 128, init: he-normal }, relu, { type: dense, width: 12 }]",
+      ].join("\n"),
+      "parcel.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const result = check(parsed.spec, { ledger: true });
+    const model = reportModel(result, { version: "test" });
+    const worst = model.findings[0]!;
+    expect(worst.subject).toBe(model.ledger!.subject);
+    expect(result.formats.flatMap((f) => f.findings).find((f) => f.subject === worst.subject)!.at).toBe("end");
+    const tensor = result.tensors.find((t) => t.id === worst.subject)!;
+    const tenth = (x: number): number => Math.round(10 * Math.log2(x)) / 10;
+    expect(tenth(tensor.end.rms)).not.toBe(tenth(tensor.start.rms));
+    expect(renderHtmlReport(model)).toContain(
+      `rms at the start of training is 2<sup>${tenth(tensor.start.rms)}</sup>, and 2<sup>${tenth(tensor.end.rms)}</sup> at the end of the horizon; ` +
+        `the check multiplies it by the loss scale 2<sup>${Math.log2(result.lossScale.value)}</sup> before judging it.`,
+    );
+  });
+});
