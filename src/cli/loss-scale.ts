@@ -7,7 +7,9 @@ import { UserError } from "./errors.js";
  */
 export function parseLossScale(text: string | undefined): number | undefined {
   if (text === undefined) return undefined;
-  const value = Number(text);
+  // "2^-22" as every output writes a scale (a pick below 2^-14 is otherwise a 16-digit decimal to copy)
+  const power = /^2\^([+-]?\d{1,4})$/.exec(text.trim());
+  const value = power ? 2 ** Number(power[1]) : Number(text);
   if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
     throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
   }

@@ -157,6 +157,18 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(runCli(["check", "--json", "--loss-scale", String(2 ** 127), "specs/deep-relu-he.yaml"]).stderr).toBe("");
   });
 
+  it("takes a loss scale written 2^k, as the output writes it", () => {
+    // the check's own line says "judged with the recommended 2^-22 = 2.38e-7" for a scale a user may want to pass back
+    const power = runCli(["check", "--json", "--loss-scale", "2^-22", "specs/deep-relu-he.yaml"]);
+    expect(power.stderr).toBe("");
+    expect((JSON.parse(power.stdout) as { lossScale: { value: number; origin: string } }).lossScale).toEqual({ value: 2 ** -22, origin: "option" });
+    const decimal = runCli(["check", "--json", "--loss-scale", String(2 ** -22), "specs/deep-relu-he.yaml"]);
+    expect(power.stdout).toBe(decimal.stdout);
+    // the same bounds: binary32's normal range 2^-126 to 2^127 (IEEE 754-2019 Table 3.5)
+    expect(runCli(["check", "--loss-scale", "2^128", "specs/deep-relu-he.yaml"]).stderr).toMatch(/--loss-scale: 2\^128 is outside the binary32 range/);
+    expect(runCli(["check", "--loss-scale", "2^1.5", "specs/deep-relu-he.yaml"]).stderr).toMatch(/expected a power of two such as 1024 or 0.5, got "2\^1.5"/);
+  });
+
   it("check --vary reads --loss-scale by the same rule and message as a plain check", () => {
     // a loss scale is a power of two so scaling and unscaling are exact (Micikevicius et al. 2018 §3.2)
     const plain = runCli(["check", "--loss-scale", "1000", "specs/deep-relu-he.yaml"]);

@@ -17,7 +17,7 @@ export function addJudgeOptions(command: Command): Command {
       ),
     )
     .addOption(planOption("judge"))
-    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale, a power of two, instead of the plan's"));
+    .addOption(new Option("--loss-scale <scale>", "judge with this static loss scale, a power of two (1024, 0.5 or 2^-22), instead of the plan's"));
 }
 
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards (run by src/cli/check.ts). */
