@@ -1,4 +1,6 @@
-import { readdirSync, readFileSync } from "node:fs";
+import { mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
 import { describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 
@@ -185,5 +187,31 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
       ["training.batch=4", { value: 0.5, origin: "option" }],
       ["training.batch=64", { value: 0.5, origin: "option" }],
     ]);
+  });
+});
+
+describe("check --help tells the exit code the command gives", () => {
+  it("exit code 1 for a verdict 'fails' that comes from the optimizer while every format fits (README, Exit codes)", () => {
+    // an invented deep, narrow bfloat16 network with no master copy: Adam's updates fall below half an ulp of the weights
+    const dir = mkdtempSync(join(tmpdir(), "headroom-help-"));
+    const file = join(dir, "meltwater.yaml");
+    writeFileSync(
+      file,
+      [
+        "name: meltwater",
+        "input: { features: 12 }",
+        "training: { batch: 32, loss: { kind: mean-squared-error }, optimizer: { kind: adam, learning-rate: 1.0e-4 } }",
+        "precision: { activations: bfloat16, master-weights: none }",
+        "layers: [{ type: dense, width: 24, init: glorot-normal }, tanh, { type: dense, width: 1 }]",
+      ].join("\n"),
+    );
+    const run = runCli(["check", "--json", file]);
+    rmSync(dir, { recursive: true, force: true });
+    const result = JSON.parse(run.stdout) as { verdict: string; formats: { verdict: string }[]; optimizer: { verdict: string } };
+    expect(result.formats.every((f) => f.verdict !== "fails")).toBe(true);
+    expect(result.optimizer.verdict).toBe("fails");
+    expect(run.status).toBe(1);
+    const help = runCli(["check", "--help"]).stdout.replace(/\s+/g, " ");
+    expect(help).toContain('Exit code 1 when the verdict is "fails" (a format, the optimizer or the loss scale)');
   });
 });

@@ -25,7 +25,8 @@ export const register: RegisterCommand = (program) => {
   const command = specCommand(program, "check")
     .description(
       "Judge a network spec against its precision plan: a verdict per format (fits, at risk, fails) with the reasons, " +
-        "the tensors at risk and the operation hazards. Exit code 1 when a format fails, 2 for input errors. " +
+        "the tensors at risk, the operation hazards, the loss scale and the optimizer. Exit code 1 when the verdict is " +
+        "\"fails\" (a format, the optimizer or the loss scale), 2 for input errors. " +
         "Predictions are estimates; confirm with a short run.",
     )
     .option("--all", "list every tensor and operation, not only those at risk")

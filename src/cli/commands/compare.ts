@@ -6,8 +6,8 @@ export const register: RegisterCommand = (program) => {
   specCommand(program, "compare")
     .description(
       "Evaluate several precision plans for one network (all binary32; binary16 or bfloat16 with a master copy; bfloat16 " +
-        "only; 8-bit with scale factors; and the spec's own plans) and rank them: the cheapest plan expected to train " +
-        "safely first. Exit code 1 when no plan trains safely, 2 for input errors. Rankings rest on estimates.",
+        "only; 8-bit with scale factors; and the spec's own plans) and rank them: the cheapest plan not expected to fail " +
+        "first. Exit code 1 when every plan is expected to fail, 2 for input errors. Rankings rest on estimates.",
     )
     .option("--only-spec-plans", "compare only the spec's own plans (its precision and plans)")
     .option("--json", "print the whole comparison as JSON")
