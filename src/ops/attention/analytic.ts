@@ -359,10 +359,15 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // W_oᵀ is the same for every sample and position: two samples' gradients keep what they share (as dense's backward)
     if (output.shared !== undefined) heads.shared = outGain * output.shared;
     if (output.crossCorrelation !== undefined) heads.crossCorrelation = output.crossCorrelation;
-    // δv_j = Σ_i p_ij·δo_i: an average over rows, like the forward one
+    // δv_j = Σ_i p_ij·δo_i, with E[δo_i·δo_i'] = E[δo²]·(ρ + (1 − ρ)·[i = i']): E[δv_j²] = E[δo²]·((1 − ρ)·Σ_i p_ij² +
+    // ρ·a_j²), a_j = Σ_i p_ij the weight key j gets (its mean taken, 1 full, H_P − H_(j−1) causal). Two keys j ≠ j'
+    // share (1 − ρ)·Σ_i p_ij·p_ij' + ρ·a_j·a_j', where Σ_(j≠j') p_ij·p_ij' = 1 − Σ_j p_ij² in every row and
+    // Σ_(j≠j') a_j·a_j' = P² − Σ_j a_j² (own algebra)
     const headsPositionShared = headsQ * heads.positionCorrelation;
-    const valueQ = positionAverage(headsQ, headsPositionShared, stash.rows.sumSquares);
-    const valuePositionCorrelation = valueQ > 0 ? positionAverage(headsQ, headsPositionShared, 1 / stash.rows.keys) / valueQ : 0;
+    const columnSquares = spec.causal ? causalColumnSquares(P) : 1;
+    const valueQ = (headsQ - headsPositionShared) * stash.rows.sumSquares + headsPositionShared * columnSquares;
+    const valuePositionShared = P > 1 ? ((headsQ - headsPositionShared) * (1 - stash.rows.sumSquares) + headsPositionShared * (P - columnSquares)) / (P - 1) : valueQ;
+    const valuePositionCorrelation = valueQ > 0 ? valuePositionShared / valueQ : 0;
     const probQ = d * headsQ * stash.value.q;
     const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
     const valueApart = 1 - positionCorrelationOf(stash.value);
@@ -389,7 +394,6 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const headsSample = sampleCorrelationOf(heads);
     const headsCross = crossCorrelationOf(heads);
     const pairTotal = headsQ * P * (headsSample + (P - 1) * headsCross);
-    const columnSquares = spec.causal ? causalColumnSquares(P) : 1;
     const rowSquares = P > 0 ? (spec.causal ? harmonic(P) : 1) / P : 0;
     const valueSamplePair = headsQ * (headsCross * columnSquares + (headsSample - headsCross) * rowSquares);
     const valueCrossPair = P > 1 ? (pairTotal - P * valueSamplePair) / (P * (P - 1)) : valueSamplePair;
@@ -424,7 +428,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         SOURCE,
       );
       const keyFactor = factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE);
-      const valueFactor = factor(headsQ > 0 ? valueQ / headsQ : 0, () => `attention value: Σ_i p_ij² + ρ·(1 − Σ_i p_ij²) = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}`, AVERAGE_SOURCE);
+      const valueFactor = factor(
+        headsQ > 0 ? valueQ / headsQ : 0,
+        () => `attention value: (1 − ρ)·Σ_i p_ij² + ρ·mean a_j² = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)} with mean a_j² = ${fmt(columnSquares)}`,
+        AVERAGE_SOURCE,
+      );
       const inputFactor = factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward);
       return {
         heads: [headFactor],
