@@ -327,6 +327,25 @@ export function renderHazards(hazards: readonly HazardCheck[], all: boolean, wid
   return out;
 }
 
+const RANK: Readonly<Record<Verdict, number>> = { fits: 0, "at-risk": 1, fails: 2 };
+
+/**
+ * Where an overall verdict comes from when no format's verdict is as bad: the optimizer check or the loss scale (README,
+ * Verdicts), which the sections below tell; without it "Verdict fails" stands over a list of formats that all fit.
+ */
+function verdictSource(result: CheckResult): string {
+  if (result.formats.some((f) => RANK[f.verdict] >= RANK[result.verdict])) return "";
+  const answer = result as Partial<CheckAnswer>;
+  const sources = [
+    ...(answer.optimizer !== undefined && answer.optimizer.verdict === result.verdict ? ["the optimizer check"] : []),
+    // an answer counts only when a judged format holds its gradients (src/check.ts)
+    ...((answer.lossScales ?? []).some((item) => item.status === "empty" && result.formats.some((f) => f.format === item.format))
+      ? ["the loss scale (no static scale fits)"]
+      : []),
+  ];
+  return sources.length === 0 ? "" : ` (from ${sources.join(" and ")}; see below)`;
+}
+
 /** Operation-hazard lines of one kind, format and verdict shown without --all. */
 export const HAZARD_GROUP_LIMIT = 3;
 
@@ -357,7 +376,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
     out += wrap(`recorded statistics not used: ${unused.map((u) => u.sentence).join("; ")}.`, width, "", "  ");
   }
 
-  out += "\n" + style.role("strong", "Verdict") + ` ${verdictText(result.verdict, style)}\n`;
+  out += "\n" + style.role("strong", "Verdict") + ` ${verdictText(result.verdict, style)}${verdictSource(result)}\n`;
   out += "\n" + style.role("strong", "Verdict per format") + "\n";
   const formatWidth = Math.max(...result.formats.map((f) => f.format.length));
   for (const format of result.formats) {

@@ -327,3 +327,28 @@ describe("the plan line names the conversion settings", () => {
     expect(describePlan(bfloat)).toMatch(/accumulation binary32$/);
   });
 });
+
+describe("the overall verdict line says where a verdict no format has comes from", () => {
+  // an invented deep, narrow bfloat16 network with no master copy: Adam's updates fall below half an ulp of the weights
+  const text = [
+    "name: meltwater",
+    "input: { features: 12 }",
+    "training: { batch: 32, loss: { kind: mean-squared-error }, optimizer: { kind: adam, learning-rate: 1.0e-4 } }",
+    "precision: { activations: bfloat16, master-weights: none }",
+    "layers: [{ type: dense, width: 24, init: glorot-normal }, tanh, { type: dense, width: 1 }]",
+  ].join("\n");
+
+  it("names the optimizer check when every format fits and the optimizer fails (README, Verdicts: the worst of the three)", () => {
+    const parsed = parseSpec(text, "meltwater.yaml");
+    if (!parsed.ok) throw new Error("the inline spec does not parse");
+    const result = check(parsed.spec);
+    expect(result.formats.every((f) => f.verdict === "fits")).toBe(true);
+    expect(result.verdict).toBe("fails");
+    expect(renderCheckText(result, { width: 200 })).toContain("\nVerdict fails (from the optimizer check; see below)\n");
+  });
+
+  it("adds nothing when a format's verdict is the overall one", () => {
+    const out = renderCheckText(check(example("cnn-batchnorm.yaml")), { width: 200 });
+    expect(out).toContain("\nVerdict at risk\n");
+  });
+});
