@@ -55,7 +55,9 @@ export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">):
     case "relative-error":
       return formatValue(worst.value, 2);
     case "count":
-      return `${formatCompactCount(worst.value)} elements`;
+      // an expected count per step (Adam's zero second moments, "about 1.66" in the sentence) keeps its fraction below
+      // 100: rounded to a whole number, 1.66 read as 2 elements beside the sentence's 1.66
+      return `${worst.value < 100 && !Number.isInteger(worst.value) ? formatValue(worst.value) : formatCompactCount(worst.value)} elements`;
   }
 }
 

@@ -8,6 +8,7 @@ import {
   BATCH_CSV_HEADER,
   batchCountLine,
   countRows,
+  formatRiskValue,
   renderBatchCsv,
   renderBatchJsonl,
   renderBatchMarkdown,
@@ -253,5 +254,14 @@ describe("a check with two loss-scale answers (check --format binary16,e5m2)", (
     expect(single).not.toContain("binary16 2^");
     const both = renderBatchText([{ ...row, summary: summarizeCheck(check(parsed.spec, { formats: ["bfloat16", "e5m2"] })) }]).split("\n")[2]!;
     expect(both).toContain(`bfloat16 not needed; e5m2 ${cell(e5m2)}`);
+  });
+});
+
+describe("a worst finding counted in elements", () => {
+  test("keeps the expected count's fraction, as the finding's sentence gives it ('about 1.66 second-moment elements')", () => {
+    expect(formatRiskValue({ value: 1.6591118013057697, measure: "count" })).toBe("1.66 elements");
+    expect(formatRiskValue({ value: 0.25, measure: "count" })).toBe("0.25 elements");
+    expect(formatRiskValue({ value: 12, measure: "count" })).toBe("12 elements");
+    expect(formatRiskValue({ value: 4_500_000.5, measure: "count" })).toBe("4.5M elements");
   });
 });
