@@ -381,7 +381,12 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
     const queryCoherent = queryScale / inWidth;
     const queryQ = stash.rows.sumSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
-    const keyQ = stash.rows.sumSquares * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
+    // δk_j = c·Σ_i p_ij·(δo_i·ṽ_j)·q_i: two rows i ≠ i' of one sample pair by E[δo_i·δo_i']·E[q_i·q_i'], the head
+    // gradients' and the queries' position correlations (nothing cancels the part all queries share), so besides the
+    // Σ_i p_ij² of independent rows the column adds ρ_o·ρ_q·(a_j² − Σ_i p_ij²), a_j = Σ_i p_ij (own algebra)
+    const rowPairs = positionCorrelationOf(heads) * positionCorrelationOf(stash.query);
+    const keyColumn = stash.rows.sumSquares + rowPairs * Math.max(columnSquares - stash.rows.sumSquares, 0);
+    const keyQ = keyColumn * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
     const valueGradient: Gradient = { q: valueQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: valuePositionCorrelation };
@@ -427,7 +432,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         () => `attention query: (Σp² + (1 − Σp²)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
         SOURCE,
       );
-      const keyFactor = factor(keyQ / Math.max(headsQ, 1e-300), () => `attention key: Σp²·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))}`, SOURCE);
+      const keyFactor = factor(
+        keyQ / Math.max(headsQ, 1e-300),
+        () => `attention key: (Σp² + ρ_o·ρ_q·(mean a_j² − Σp²))·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))} with ρ_o·ρ_q = ${fmt(rowPairs)}`,
+        SOURCE,
+      );
       const valueFactor = factor(
         headsQ > 0 ? valueQ / headsQ : 0,
         () => `attention value: (1 − ρ)·Σ_i p_ij² + ρ·mean a_j² = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)} with mean a_j² = ${fmt(columnSquares)}`,
