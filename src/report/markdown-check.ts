@@ -63,7 +63,15 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   const scales = lossScaleSummaries(result);
   const named = namesGradientFormats(result);
   if (scales.length === 0) out += lossScaleLine("Loss scale", { status: "not-evaluated" });
-  else for (const s of scales) out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s);
+  else {
+    for (const [i, s] of scales.entries()) {
+      out += lossScaleLine(named ? `Loss scale for ${s.format} gradients` : "Loss scale", s);
+      // no static scale: what to do, as the optimizer's first remedy is given below (the terminal lists them all)
+      const item = "lossScales" in result ? result.lossScales[i] : undefined;
+      const remedy = item !== undefined && item.status === "empty" ? item.answer.remedies.find((r) => r.works) : undefined;
+      if (remedy !== undefined) out += `- first remedy that works: ${escapeMarkdown(remedy.sentence)}\n`;
+    }
+  }
   // the optimizer counts in the verdict: a verdict it alone sets would otherwise have no reason on the page
   if ("optimizer" in result && result.optimizer.verdict !== "fits") {
     const optimizer = result.optimizer;

@@ -117,3 +117,30 @@ describe("renderCheckMarkdown: the optimizer's part of the verdict", () => {
     expect(renderCheckMarkdown(fine)).not.toContain("Optimizer sgd");
   });
 });
+
+describe("check --md with no static loss scale", () => {
+  test("gives the first remedy that works, as it gives the optimizer's (a CI reader gets something to do)", () => {
+    // an invented regressor on raw sensor columns in grams, binary16 with subnormals flushed: no static scale fits
+    const parsed = parseSpec(
+      [
+        "name: orchard-crates",
+        "input: { features: 37, scale: 2500 }",
+        "training:",
+        "  batch: 128",
+        "  loss: { kind: mean-squared-error, target-scale: 40000, reduction: sum }",
+        "  optimizer: { kind: sgd, learning-rate: 1.0e-6 }",
+        "  horizon: { steps: 5000, final-loss: 1.0e4 }",
+        "precision: { activations: binary16, flush-subnormals: true }",
+        "layers: [{ type: dense, width: 64, init: he-normal }, relu, { type: dense, width: 64, init: he-normal }, relu, { type: dense, width: 1 }]",
+      ].join("\n"),
+      "orchard.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const result = check(parsed.spec);
+    const answer = result.lossScaleAnswer!;
+    expect(answer.window.empty).toBe(true);
+    const works = answer.remedies.find((r) => r.works)!;
+    const md = renderCheckMarkdown(result);
+    expect(md).toContain(`\n- first remedy that works: ${escapeMarkdown(works.sentence)}\n`);
+  });
+});
