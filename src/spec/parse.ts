@@ -66,10 +66,10 @@ interface Parsed {
   counter: LineCounter;
 }
 
-function parseWithPositions(text: string): Parsed {
+function parseWithPositions(text: string, uniqueKeys = true): Parsed {
   const yaml = yamlLib();
   const counter = new yaml.LineCounter();
-  const doc = yaml.parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys: true, prettyErrors: true });
+  const doc = yaml.parseDocument(text, { lineCounter: counter, merge: true, uniqueKeys, prettyErrors: true });
   return { doc: doc as Document, counter };
 }
 
@@ -92,6 +92,15 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
       };
       return error.code === "DUPLICATE_KEY" ? { ...issue, ...duplicateKey(doc, counter, error.pos[0]) } : issue;
     });
+    // a key written twice leaves the document readable: the rest of the spec is still checked, so every problem of the
+    // file is reported at once (the later value of the key is the one checked, as a YAML reader keeping one would)
+    if (doc.errors.every((error) => error.code === "DUPLICATE_KEY")) {
+      const relaxed = parseWithPositions(text, false);
+      if (relaxed.doc.errors.length === 0) {
+        const rest = parseYaml(text, source, relaxed);
+        if (!rest.ok) issues.push(...rest.issues.filter((other) => !issues.some((i) => i.line === other.line && i.column === other.column)));
+      }
+    }
     return { ok: false, issues: issues.sort(byPosition) };
   }
   let data: unknown;

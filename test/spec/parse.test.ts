@@ -445,3 +445,32 @@ describe("bad arguments (README, Library API: library functions throw TypeError 
     expect(() => parseSpec("input: { features: 1 }\n", undefined as unknown as string)).toThrow(TypeError);
   });
 });
+
+describe("a key written twice does not hide the file's other problems", () => {
+  // YAML 1.2.2 §3.2.1.1: mapping keys are unique; specs/README: every problem in a file is reported at once
+  it("reports the repeated key and every other problem, each at its position", () => {
+    const text = [
+      "input: { features: 10 }",
+      "training: { batch: 8, loss: { kind: cross-entropy, classes: 3 } }",
+      "layers:",
+      "  - { type: dense, width: 3, width: 4 }",
+      "  - { type: dense, width: 3.5 }",
+      "  - { type: dense, widht: 3 }",
+    ].join("\n");
+    const result = parseSpec(text, "twice.yaml");
+    expect(result.ok).toBe(false);
+    if (result.ok) return;
+    expect(result.issues.map((i) => `${i.line}:${i.column} ${i.path}`)).toEqual([
+      "4:30 layers[0].width",
+      "5:27 layers[1].width",
+      "6:20 layers[2].widht",
+    ]);
+    expect(result.issues[0]!.message).toContain('the key "width" is written twice in one mapping (first at line 4, column 20)');
+  });
+
+  it("reports the repeated key alone when the rest of the spec is valid", () => {
+    const text = ["input: { features: 10 }", "training: { batch: 8, batch: 16, loss: { kind: cross-entropy, classes: 3 } }", "layers: [{ type: dense, width: 3 }]"].join("\n");
+    const result = parseSpec(text, "twice.yaml");
+    expect(!result.ok && result.issues.map((i) => i.path)).toEqual(["training.batch"]);
+  });
+});
