@@ -94,12 +94,19 @@ export function lossSeed(
     // E[δ_n δ_m] per element = E[p_n p_m] − 2E[p]/C + 1/C² = E[p_n p_m] − 1/C² (derived), E[p_n p_m] exact
     const c = s2Mean > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2Mean, 0), 1) : 0;
     const sharedQ = Math.max(gaussianSoftmaxPairMoment(s2, c, C) - 1 / (C * C), 0) * k * k * Math.exp(total.logVar / 2);
+    const gradient: Gradient = { q: total.q, zeroFraction: 0, shape: "gaussian", logVar: total.logVar, shared: Math.min(sharedQ, total.q) };
+    if (!end && C >= 2) {
+      // ∂(p − y)/∂z = diag(p) − p pᵀ; its mean over Gaussian logits has E[p_j − p_j²] = 1/C − E[p²] on the diagonal and,
+      // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
+      const h = k * (1 / C - gaussianSoftmaxMoments(s2, C).second);
+      gradient.curvature = { diagonal: h, diagonalSquare: h * h, rowSquares: (h * h * C) / (C - 1) };
+    }
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
       valueLogVar,
       termValue: perTerm,
       terms: N,
-      gradient: { q: total.q, zeroFraction: 0, shape: "gaussian", logVar: total.logVar, shared: Math.min(sharedQ, total.q) },
+      gradient,
       bulk: {
         gradient: {
           q: wrong.q,
@@ -128,6 +135,8 @@ export function lossSeed(
   const residual = residualOf(medianOf(output.q, V));
   // targets independent of the outputs: the samples share only the outputs' shared part
   const gradient: Gradient = { q: seed.q, zeroFraction: 0, shape: "gaussian", logVar: seed.logVar, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, seed.q) };
+  // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
+  if (endLoss === undefined) gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
   return {
     value: loss.reduction === "mean" ? residual : residual * M,
     valueLogVar: seed.logVar,

@@ -362,7 +362,9 @@ class Phase {
     const A = training.accumulationSteps;
     const W = training.workers;
     const averaged = training.workerGradients === "average";
-    const summedQ = wg.q * A * W;
+    // micro-batch sums add incoherently, but the part that is the same in each of them (alignedQ) coherently
+    const aligned = wg.alignedQ ?? 0;
+    const summedQ = (wg.q - aligned) * A * W + aligned * A * A * W * W;
     const finalQ = averaged ? summedQ / (W * W) : summedQ;
     const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
     // an element of the combined gradient is zero only when it is zero in every micro-batch, taken as independent (exact
@@ -384,10 +386,12 @@ class Phase {
   private weightGradientNode(layer: GraphLayer, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number, finalQ: number | undefined): LedgerNode | null {
     // the wording keeps only the rule, not the whole moment, alive until the ledger is read
     const wgRule = wg.rule;
+    const aligned = wg.alignedQ ?? 0;
     const factors: Factor[] = [
       {
         ratio: outputQ > 0 ? wg.q / outputQ : 0,
-        rule: () => `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄) relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
+        rule: () =>
+          `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄)${aligned > 0 ? " + the part the loss's curvature aligns, N²·E[x²]²·var_w·Σ_j M_ij²" : ""} relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
         source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
       },
     ];
@@ -436,6 +440,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (layer.family !== "max-pool" && input.windowMaximum !== undefined) delete input.windowMaximum;
   if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
   if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
+  // the loss's curvature is carried through linear layers and pointwise activations only (see Curvature)
+  if (input.curvature !== undefined && layer.family !== "dense" && layer.family !== "activation") delete input.curvature;
 }
 
 /**
@@ -547,6 +553,7 @@ function assumptions(spec: NetworkSpec): string[] {
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass; these are estimates, so confirm them with a short run.",
     "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
+    "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; norms take it for their gain and pass none further down, nor do residual, attention, gated, convolution and pooling layers.",
     "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",

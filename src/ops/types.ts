@@ -95,7 +95,30 @@ export interface Gradient {
    * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']
    */
   reluGated?: { sample: number; position: number };
+  /**
+   * at the start of the horizon, where the labels are independent of the inputs: the loss's expected Gauss–Newton
+   * matrix in this tensor's features (set by the loss, carried down through linear layers and pointwise activations).
+   * A layer's gradient then holds its own output through it, so its weight gradient has a part that is the same in
+   * every micro-batch (see {@link Curvature})
+   */
+  curvature?: Curvature;
 }
+
+/**
+ * Statistics of M = E_t[Jᵀ·∂²L/∂z²·J], the expected Gauss–Newton matrix of the loss in one sample's features, over the
+ * draw of the weights. With δ = ∂L/∂y ≈ M·y + (what does not depend on the layer), a layer y = W·x sums
+ * N·E[δ·xᵀ] = N·M·W·E[x xᵀ] into its weight gradient in every micro-batch (Stein's lemma: E[f(z)·x] = E[∇f]·Cov(z, x)
+ * for Gaussian z): a per-element second moment N²·E[x²]²·var_w·rowSquares.
+ */
+export interface Curvature {
+  /** E[M_ii] */
+  diagonal: number;
+  /** E[M_ii²] */
+  diagonalSquare: number;
+  /** E[Σ_j M_ij²], the diagonal's square included */
+  rowSquares: number;
+}
+
 
 /** Ledger wording, built only when someone reads the ledger (formatting numbers for every layer is costly). */
 export type Text = string | (() => string);
@@ -196,6 +219,11 @@ export interface WeightGradientMoment {
   q: number;
   /** coherent sum: N²·E[x²]·E[δ²] (all terms aligned), the upper bracket (SCIENCE.md §2.1) */
   coherentQ: number;
+  /**
+   * the part of `q` that is the same in every micro-batch (the loss's curvature through the layer's own weights, see
+   * {@link Curvature}): micro-batches and workers add it coherently; absent: 0
+   */
+  alignedQ?: number;
   /** terms summed per element (batch × positions) */
   terms: number;
   zeroFraction: number;

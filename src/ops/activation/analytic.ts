@@ -7,7 +7,8 @@
 import { featureWidth, positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
-import { gaussLegendre } from "../../numeric/quadrature.js";
+import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
+import { activationFunction } from "../../numeric/activations.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
 import { NO_FACTORS, SOURCES, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
@@ -18,6 +19,8 @@ export interface ActivationStash {
   input: Signal;
   /** E[φ'²] over all elements (zeros of the input included) */
   derivativeSecond: number;
+  /** E[φ'] over all elements (zeros of the input included) */
+  derivativeMean: number;
   /** share of input elements where φ' = 0 (a ReLU's negative half) */
   derivativeZeroFraction: number;
   kappaBackward: number;
@@ -243,6 +246,7 @@ export function pointwiseForward(
   const q = keep * m.second + input.zeroFraction * f0 * f0;
   const mean = keep * m.mean + input.zeroFraction * f0;
   const derivativeSecond = keep * m.derivativeSecond + input.zeroFraction * d0 * d0;
+  const derivativeMean = keep * m.derivativeMean + input.zeroFraction * d0;
   const zeroFraction = (f0 === 0 ? input.zeroFraction : 0) + keep * m.zeroFraction;
   const kappa = activationKappa(m);
   let logVar = input.logVar;
@@ -269,6 +273,7 @@ export function pointwiseForward(
     stash: {
       input,
       derivativeSecond,
+      derivativeMean,
       derivativeZeroFraction,
       kappaBackward: kappa.backward,
       derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0,
@@ -307,6 +312,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   }
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
+  let ratio = derivativeSecond;
   if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
   if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);
   // two samples at two positions: the derivatives pair as two samples' do
@@ -314,7 +320,62 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
   if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output) };
-  return { gradient, ratio: derivativeSecond, rule };
+  const curvature = output.curvature;
+  if (curvature !== undefined && k === undefined) {
+    // M'' = Φ'·M·Φ' with Φ' = diag(φ'): on the diagonal E[φ'²], off it E[φ'_i·φ'_j] = E[φ']² (two units of one sample,
+    // independent weights) (derived, as Curvature)
+    const d2 = stash.derivativeSecond;
+    const off = stash.derivativeMean * stash.derivativeMean;
+    const diagonalSquare = d2 * d2 * curvature.diagonalSquare;
+    gradient.curvature = { diagonal: d2 * curvature.diagonal, diagonalSquare, rowSquares: diagonalSquare + off * off * Math.max(curvature.rowSquares - curvature.diagonalSquare, 0) };
+    // the gradient holds M_ii·φ(u_i) of its own unit, which φ'(u_i) does not gate independently: its square is
+    // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and its mean over the data, E[φ'φ]·M_ii, is the same for every
+    // sample (a shared part the bias gradient sums coherently)
+    const self = selfMoments(name, stash);
+    gradient.q = Math.max(gradient.q + curvature.diagonalSquare * (self.second - d2 * self.outputSecond), 0);
+    if (output.q > 0) ratio = gradient.q / output.q;
+    if (ledger) rule = selfGateRule(name, derivativeSecond, ratio);
+    gradient.shared = Math.min((gradient.shared ?? 0) + curvature.diagonalSquare * self.mean * self.mean, gradient.q);
+  }
+  return { gradient, ratio, rule };
+}
+
+function selfGateRule(name: string, derivativeSecond: number, ratio: number): Text {
+  return () => `${name}: E[φ'²] = ${fmt(derivativeSecond)}, with the unit's own output the loss's curvature holds in its gradient: ${fmt(ratio)}`;
+}
+
+/**
+ * E[φ'(u)·φ(u)], E[φ'(u)²·φ(u)²] and E[φ(u)²] of an activation's input u (its zeros mapped through φ(0), φ'(0)):
+ * closed forms for the rectifiers and the identity (half-normal moments), quadrature for the smooth ones.
+ */
+function selfMoments(name: string, stash: ActivationStash): { mean: number; second: number; outputSecond: number } {
+  const input = stash.input;
+  const keep = 1 - input.zeroFraction;
+  const q = keep > 0 ? input.q / keep : 0;
+  const a = name === "leaky-relu" ? (stash.slope ?? 0) : name === "identity" ? 1 : 0;
+  let mean: number;
+  let second: number;
+  let outputSecond: number;
+  if (name === "relu" || name === "leaky-relu" || name === "identity") {
+    // E[u·1(u>0)] = √(q/2π), E[u²·1(u>0)] = q/2; φ'φ = u on the positive side, a²·u on the negative
+    mean = (1 - a * a) * Math.sqrt(q / (2 * Math.PI));
+    second = (q * (1 + a * a * a * a)) / 2;
+    outputSecond = (q * (1 + a * a)) / 2;
+  } else {
+    const { f, df } = activationFunction(name as ActivationName, stash.slope);
+    mean = gaussianExpectationSplit((u) => df(u) * f(u), q);
+    second = gaussianExpectationSplit((u) => (df(u) * f(u)) ** 2, q);
+    outputSecond = gaussianExpectationSplit((u) => f(u) ** 2, q);
+  }
+  // an element the input holds at zero maps to φ(0)·φ'(0) (relu'(0) = 0 as implementations define it)
+  const at = activationFunction(name as ActivationName, stash.slope);
+  const zeroValue = at.f(0) * at.df(0);
+  const zeroOutput = at.f(0) * at.f(0);
+  return {
+    mean: keep * mean + input.zeroFraction * zeroValue,
+    second: keep * second + input.zeroFraction * zeroValue * zeroValue,
+    outputSecond: keep * outputSecond + input.zeroFraction * zeroOutput,
+  };
 }
 
 export const activationRule: AnalyticRule<ActivationStash> = {
@@ -383,7 +444,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         detail: ctx.ledger ? softmaxDetail(n) : "",
       },
     ],
-    stash: { input, derivativeSecond: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second },
+    stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second },
   };
 }
 

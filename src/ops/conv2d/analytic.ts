@@ -18,8 +18,9 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     const inChannels = w.shape[1] ?? 1;
     // connections per input element = (output elements × in-channels × k²) / input elements
     const connections = (sampleElements(layer.output) * w.fanIn) / sampleElements(layer.input);
-    const gain = ctx.variance(w) * connections;
-    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, ctx.variance(w), gain) : "", inChannels);
+    const variance = ctx.variance(w);
+    const gain = variance * connections;
+    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
   },
 };
 

@@ -6,7 +6,7 @@
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import { NO_FACTORS, SOURCES, factor, fmt, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
-import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
 export interface DenseStash {
@@ -20,9 +20,10 @@ export const denseRule: AnalyticRule<DenseStash> = {
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: DenseStash, output: Gradient): BackwardResult {
     const w = weightOf(layer, "weight");
-    const gain = ctx.variance(w) * w.fanOut;
+    const variance = ctx.variance(w);
+    const gain = variance * w.fanOut;
     const inWidth = w.fanIn;
-    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? denseBackwardRule(gain) : "", inWidth);
+    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? denseBackwardRule(gain) : "", inWidth, variance);
   },
 };
 
@@ -71,6 +72,7 @@ export function linearBackward(
   gain: number,
   rule: Text,
   inWidth: number,
+  variance: number,
 ): BackwardResult {
   const positions = positionCount(layer.output);
   const terms = ctx.batch * positions;
@@ -78,10 +80,15 @@ export function linearBackward(
   const x = stash.input;
   // a row (column) of the weight gradient is exactly zero when its unit's gradient (input) is zero at every term
   const deltaZero = output.allZero ?? 0;
+  const curvature = output.curvature;
+  // the loss's curvature through these weights: N·M·W·E[x xᵀ] in every micro-batch (see Curvature), E[x xᵀ] taken as
+  // E[x²]·I (what the samples share of x is in gradientSum's pairs)
+  const aligned = curvature === undefined ? 0 : terms * terms * x.q * x.q * variance * curvature.rowSquares;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",
-      q: gradientSum(ctx.batch, positions, output, x),
+      q: gradientSum(ctx.batch, positions, output, x) + aligned,
+      alignedQ: aligned,
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
@@ -101,16 +108,48 @@ export function linearBackward(
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
+  let selfRatio = 1;
+  if (curvature !== undefined && layer.family === "dense") {
+    const outWidth = gain / variance;
+    input.curvature = densePullback(curvature, variance, outWidth, inWidth);
+    // δ_in holds Wᵀ·M·W·x: E[(Wᵀ·M·W·x)_i²] = v²·(E[(tr M)²] + (fan_in + 1)·n·r)·E[x²] (Isserlis' theorem, r the row
+    // squares), where the independent-weights rule counts fan_out·v·E[(M·y)²] = v²·n·fan_in·r·E[x²]: add the difference
+    const before = input.q;
+    input.q += variance * variance * x.q * (traceSquareOf(curvature, outWidth) + outWidth * curvature.rowSquares);
+    if (before > 0) selfRatio = input.q / before;
+  }
   if (output.shared !== undefined) input.shared = gain * output.shared;
   input.positionCorrelation = positionCorrelationOf(output);
   // weights shared across positions pair two positions of two samples with such pairs of the output gradient
   if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation;
   return {
     input,
-    factors: ctx.ledger ? [factor(gain, rule, SOURCES.backward)] : NO_FACTORS,
+    factors: ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS,
     inner: [],
     weightGradients,
   };
+}
+
+/**
+ * Curvature M' = Wᵀ·M·W of a dense layer's input, W [outWidth, inWidth] with independent entries of variance v:
+ * E[M'_ii] = v·tr M, E[M'_ii²] = v²·(E[(tr M)²] + 2·tr M²), E[M'_ij²] = v²·tr M² (Isserlis' theorem; the diagonal of M
+ * taken as independent entries).
+ */
+export function densePullback(m: Curvature, v: number, outWidth: number, inWidth: number): Curvature {
+  const trace = outWidth * m.diagonal;
+  const traceSquare = traceSquareOf(m, outWidth);
+  const frobenius = outWidth * m.rowSquares;
+  const diagonalSquare = v * v * (traceSquare + 2 * frobenius);
+  return { diagonal: v * trace, diagonalSquare, rowSquares: diagonalSquare + (inWidth - 1) * v * v * frobenius };
+}
+
+const SELF_RULE = "the loss's curvature: the gradient holds this layer's own input, Wᵀ·M·W·x";
+const SELF_SOURCE = "Gauss–Newton part of the loss gradient at the start, where labels are independent of inputs; Isserlis' theorem over the weights (derived)";
+
+// E[(tr M)²] for M n × n with independent diagonal entries
+function traceSquareOf(m: Curvature, n: number): number {
+  const trace = n * m.diagonal;
+  return trace * trace + n * Math.max(m.diagonalSquare - m.diagonal * m.diagonal, 0);
 }
 
 // The wording makers below hold only the numbers they print: a closure made inside a rule would keep the rule's

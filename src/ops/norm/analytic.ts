@@ -122,11 +122,16 @@ export const normRule: AnalyticRule<NormStash> = {
     const ratio = stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
     const positions = positionCount(layer.input);
     const terms = ctx.batch * positions;
+    // the loss's curvature through the gain: δ_i holds M_ii·g·x̂_i, so Σ_t x̂_i·δ_i gains N·g·E[x̂²]·M_ii in every
+    // micro-batch, of one sign for every feature (see Curvature)
+    const curvature = output.curvature;
+    const aligned = curvature === undefined ? 0 : terms * terms * stash.gainSquared * stash.normalisedSecond * stash.normalisedSecond * curvature.diagonalSquare;
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
         // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
-        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...gainPairCorrelations(stash, output)),
+        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...gainPairCorrelations(stash, output)) + aligned,
+        alignedQ: aligned,
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
