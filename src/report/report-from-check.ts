@@ -49,14 +49,21 @@ function tensorLabel(tensor: TensorCheck): string {
 }
 
 function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
-  const format = result.plan[tensor.slot];
-  const risk = tensor.risks.find((r) => r.format === format);
+  // drawn against the format it was judged in: the plan's, or with `--format` the first format judged that holds it
+  // (drawn against the plan's format, a tensor judged only in e5m2 read "in binary16 ... fails" with no range behind it)
+  const planned = result.plan[tensor.slot];
+  const risk =
+    tensor.risks.find((r) => r.judged && r.format === planned) ?? tensor.risks.find((r) => r.judged) ?? tensor.risks.find((r) => r.format === planned);
+  // a tensor no format judges (the loss value) is drawn against the format that holds its plan entry
+  const format = risk?.format ?? result.formats.find((f) => (f.holds as readonly string[]).includes(tensor.slot))?.format ?? planned;
+  // a format judged at another loss scale than the top-level one carries its own numbers after that scale
+  const statistics = risk?.statistics ?? tensor.statistics;
   const worst = risk ? [...risk.findings].sort((a, b) => (a.severity === b.severity ? 0 : a.severity === "fails" ? -1 : 1))[0] : undefined;
   // an 8-bit conversion with scale factors multiplies the tensor by 2^k first (k per side of the horizon): drawn
   // unscaled, a tensor the format holds well would sit outside its range and read as flushed or overflowing
   const sides = [
-    { p: tensor.statistics.start, scale: risk ? 2 ** risk.scaleLog2.start : 1 },
-    { p: tensor.statistics.end, scale: risk ? 2 ** risk.scaleLog2.end : 1 },
+    { p: statistics.start, scale: risk ? 2 ** risk.scaleLog2.start : 1 },
+    { p: statistics.end, scale: risk ? 2 ** risk.scaleLog2.end : 1 },
   ];
   // a profile that is all zeros (a bias at initialisation) has no magnitudes to show
   const shown = sides.filter((side) => side.p.rms > 0);

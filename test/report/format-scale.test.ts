@@ -113,3 +113,26 @@ describe("HTML report", () => {
     expect(renderHtmlReport(model)).not.toContain("gradients</h3>");
   });
 });
+
+describe("HTML bands of formats judged with --format", () => {
+  it("draws each tensor against a format judged, at that format's loss scale, not against the plan's unjudged binary16", () => {
+    const model = reportModel(e5m2, { version: "test" });
+    expect(model.ranges.map((r) => r.format)).toEqual(["e5m2"]);
+    for (const band of model.tensors) expect(band.format).toBe("e5m2");
+    // a gradient is drawn after e5m2's pick: 2^pick times its unscaled size (Micikevicius et al. 2018 §3.2: the scale
+    // multiplies every gradient)
+    const tensor = e5m2.tensors.find((t) => t.layer === "classifier" && t.role === "weight-gradient")!;
+    const unscaled = check(spec, { formats: ["e5m2"], lossScale: 1 }).tensors.find((t) => t.id === tensor.id)!;
+    const band = model.tensors.find((t) => t.id === tensor.id)!;
+    expect(band.rmsLog2).toBeCloseTo(Math.log2(unscaled.statistics.start.rms) + e5m2Pick, 9);
+    const html = renderHtmlReport(model);
+    expect(html).not.toContain(" in binary16: ");
+    expect(html).toContain('class="range-normal"');
+  });
+
+  it("takes the first format judged when several hold a tensor, with that format's own scale", () => {
+    const model = reportModel(both, { version: "test" });
+    const gradient = model.tensors.find((t) => t.pass === "backward")!;
+    expect(gradient.format).toBe("e5m2");
+  });
+});
