@@ -62,6 +62,12 @@ function positionAverage(q: number, shared: number, weights: number): number {
 interface RowSums {
   /** mean over rows of Σ_j E[p_ij²] */
   sumSquares: number;
+  /**
+   * mean over rows of Σ_j E[p_ij²]·(1 − 1/n_i), n_i the row's keys: what the softmax Jacobian leaves of the values'
+   * deviations, E[(v_j − Σ_l p_il·v_l)²] = (1 − 1/n)·E[ṽ²] for a row spread over its n keys (variance of a deviation
+   * from a mean of n; common practice). Nothing is left of a row of one key
+   */
+  centredSquares: number;
   /** E[p²] over the unmasked elements */
   elementSecond: number;
   /** unmasked elements per row on average; 1/keys is Σ_j p_ij·p_kj for two rows i ≠ k at initialisation */
@@ -70,6 +76,17 @@ interface RowSums {
   rowLog2Variance: number;
 }
 
+
+/** Σ_(i ≤ n) 1/i²: a loop below 64, else π²/6 − 1/n + 1/(2n²) − 1/(6n³) (Euler–Maclaurin). */
+function harmonicSquares(n: number): number {
+  if (n <= 0) return 0;
+  if (n < 64) {
+    let h = 0;
+    for (let i = 1; i <= n; i++) h += 1 / (i * i);
+    return h;
+  }
+  return (Math.PI * Math.PI) / 6 - 1 / n + 1 / (2 * n * n) - 1 / (6 * n * n * n);
+}
 
 function harmonic(n: number): number {
   if (n <= 0) return 0;
@@ -136,16 +153,20 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   let result: RowSums;
   if (!causal) {
     const perRow = Math.min(spread / positions, 1);
-    result = { sumSquares: perRow, elementSecond: perRow / positions, keys: positions, rowLog2Variance: 0 };
+    result = { sumSquares: perRow, centredSquares: perRow * (1 - 1 / positions), elementSecond: perRow / positions, keys: positions, rowLog2Variance: 0 };
   } else {
     // row i (1-based) attends to i keys: Σ_j p² = min(e^s2/i, 1)
     const full = Math.min(Math.floor(spread), positions); // rows short enough to be (near) one-hot
     // every row one-hot: no remainder (e^s2 may be +∞ in float64, and ∞·0 would give NaN)
     const total = full === positions ? positions : full + spread * (harmonic(positions) - harmonic(full));
+    // the same with each row i weighted by 1 − 1/i: Σ_(i ≤ full) (1 − 1/i) + e^s2·Σ_(i > full) (1/i − 1/i²)
+    const centred =
+      full - harmonic(full) + (full === positions ? 0 : spread * (harmonic(positions) - harmonic(full) - (harmonicSquares(positions) - harmonicSquares(full))));
     const unmasked = (positions * (positions + 1)) / 2;
     const rowLog2Variance = causalRowLog2Variance(positions);
     result = {
       sumSquares: total / positions,
+      centredSquares: centred / positions,
       elementSecond: total / unmasked,
       keys: unmasked / positions,
       rowLog2Variance,
@@ -372,7 +393,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
     const valueApart = 1 - positionCorrelationOf(stash.value);
     const keyApart = 1 - positionCorrelationOf(stash.key);
-    const logitQ = stash.rows.elementSecond * probQ * unmaskedShare * valueApart;
+    // δs_ij = p_ij·δo_i·(v_j − v̄_i): each row keeps 1 − 1/n_i of the values' deviations (centredSquares)
+    const centredElement = spec.causal ? (stash.rows.centredSquares * P) / ((P * (P + 1)) / 2) : stash.rows.centredSquares / Math.max(P, 1);
+    const logitQ = centredElement * probQ * unmaskedShare * valueApart;
     // δq_i = c·Σ_j p_ij·(δo_i·ṽ_j)·k̃_j over the deviations ṽ, k̃ (what positions share cancels). With W_v and W_k the same
     // for every key, two keys j ≠ j' pair through (x̃_j·x̃_j')², of mean D·E[x̃²]² for an input of width D: besides the
     // Σ_j p_ij² of independent keys, every pair of keys adds 1/D, and so do the pairs of two samples, which share
@@ -380,12 +403,12 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
     const queryCoherent = queryScale / inWidth;
-    const queryQ = stash.rows.sumSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
+    const queryQ = stash.rows.centredSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
     // δk_j = c·Σ_i p_ij·(δo_i·ṽ_j)·q_i: two rows i ≠ i' of one sample pair by E[δo_i·δo_i']·E[q_i·q_i'], the head
     // gradients' and the queries' position correlations (nothing cancels the part all queries share), so besides the
     // Σ_i p_ij² of independent rows the column adds ρ_o·ρ_q·(a_j² − Σ_i p_ij²), a_j = Σ_i p_ij (own algebra)
     const rowPairs = positionCorrelationOf(heads) * positionCorrelationOf(stash.query);
-    const keyColumn = stash.rows.sumSquares + rowPairs * Math.max(columnSquares - stash.rows.sumSquares, 0);
+    const keyColumn = stash.rows.centredSquares + rowPairs * Math.max(columnSquares - stash.rows.sumSquares, 0);
     const keyQ = keyColumn * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
@@ -423,18 +446,18 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
       const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
       const logitFactor = factor(
-        stash.rows.elementSecond * unmaskedShare * valueApart,
-        () => `softmax Jacobian: E[p²]·(1 − ρ_v) = ${fmt(stash.rows.elementSecond)}·${fmt(valueApart)}`,
+        centredElement * unmaskedShare * valueApart,
+        () => `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v) = ${fmt(centredElement)}·${fmt(valueApart)}`,
         valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
       );
       const queryFactor = factor(
         queryQ / Math.max(headsQ, 1e-300),
-        () => `attention query: (Σp² + (1 − Σp²)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
+        () => `attention query: (Σp²·(1 − 1/n) + (1 − Σp²)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
         SOURCE,
       );
       const keyFactor = factor(
         keyQ / Math.max(headsQ, 1e-300),
-        () => `attention key: (Σp² + ρ_o·ρ_q·(mean a_j² − Σp²))·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))} with ρ_o·ρ_q = ${fmt(rowPairs)}`,
+        () => `attention key: (Σp²·(1 − 1/n) + ρ_o·ρ_q·(mean a_j² − Σp²))·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))} with ρ_o·ρ_q = ${fmt(rowPairs)}`,
         SOURCE,
       );
       const valueFactor = factor(
