@@ -6,7 +6,7 @@ import type { CheckAnswer } from "../check.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
 import { itemSummary, lossScaleClause, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import type { PrecisionPlan } from "../spec/types.js";
-import { FORMATS } from "../formats/index.js";
+import { planSettings } from "./plan-settings.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable, type Cell } from "./table.js";
@@ -93,25 +93,10 @@ export function describePlan(plan: PrecisionPlan): string {
     `master weights ${plan.masterWeights}`,
     `accumulation ${plan.accumulate}`,
   ];
-  // the conversion settings change every 8-bit and flushing number, so two plans differing only in them must read apart
-  const eightBit = [plan.activations, plan.weights, plan.gradients, plan.optimizerStates].some((name) => FORMATS[name].bits === 8);
-  const settings = [
-    ...(eightBit
-      ? [
-          `8-bit ${SCALING_WORDS[plan.scaling]}`,
-          plan.overflow === "saturate" ? "saturating on overflow" : "infinity or NaN on overflow",
-        ]
-      : []),
-    ...(plan.flushSubnormals ? ["subnormals flushed to zero"] : []),
-  ];
-  return parts.join(", ") + (settings.length > 0 ? `; ${settings.join(", ")}` : "");
+  const settings = planSettings(plan);
+  return parts.join(", ") + (settings === "" ? "" : `; ${settings}`);
 }
 
-const SCALING_WORDS: Record<PrecisionPlan["scaling"], string> = {
-  none: "without scale factors",
-  tensor: "with per-tensor scale factors",
-  block: "with per-block scale factors",
-};
 
 /**
  * The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. With

@@ -511,7 +511,7 @@ export function renderHtmlReport(model: ReportModel): string {
   const body = [
     `<header><p class="kicker">headroom report</p><h1>${e(model.title)}</h1>`,
     model.description ? `<p class="description">${e(model.description)}</p>` : "",
-    `<dl class="facts"><dt>spec</dt><dd><code>${e(model.source)}</code></dd><dt>precision plan</dt><dd>${e(model.plan)}</dd>`,
+    `<dl class="facts"><dt>spec</dt><dd><code>${e(model.source)}</code></dd><dt>precision plan</dt><dd>${e(model.plan)}${model.planSettings === undefined ? "" : ` (${e(model.planSettings)})`}</dd>`,
     `<dt>tensors</dt><dd>${model.tensors.length}</dd></dl>`,
     // recorded rows the check could not use: the user gave them, so the page says so before any verdict
     model.unusedStatistics !== undefined && model.unusedStatistics.length > 0

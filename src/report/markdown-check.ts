@@ -10,6 +10,7 @@ import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
 import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
 import { formatValue } from "./number.js";
+import { planSettings } from "./plan-settings.js";
 
 /** Options of {@link renderCheckMarkdown}. */
 export interface CheckMarkdownOptions {
@@ -34,7 +35,8 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   const limit = options.findings ?? 10;
   const variant = options.variant ? ` (${escapeMarkdown(options.variant)})` : "";
   let out = `### headroom check: ${escapeMarkdown(result.spec.name)}${variant}: ${EMPHASIS[result.verdict]}\n\n`;
-  out += `Spec ${markdownCode(result.spec.source)}, precision plan ${markdownCode(result.plan.name)}.\n\n`;
+  const settings = planSettings(result.plan);
+  out += `Spec ${markdownCode(result.spec.source)}, precision plan ${markdownCode(result.plan.name)}${settings === "" ? "" : ` (${settings})`}.\n\n`;
   out += markdownTable(
     [{ title: "format" }, { title: "holds" }, { title: "verdict" }, { title: "why" }],
     result.formats.map((f) => [

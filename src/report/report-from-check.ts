@@ -9,6 +9,7 @@ import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
 import { itemSummary, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
+import { planSettings } from "./plan-settings.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
 
@@ -136,6 +137,7 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
     description: result.spec.description,
     source: result.spec.source,
     plan: result.plan.name,
+    ...(planSettings(result.plan) === "" ? {} : { planSettings: planSettings(result.plan) }),
     verdict: result.verdict,
     reasons: [...new Set(reasons)],
     formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h), planned: f.planned })),

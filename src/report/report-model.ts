@@ -102,6 +102,8 @@ export interface ReportModel {
   source: string;
   /** the evaluated precision plan's name */
   plan: string;
+  /** its conversion settings that move numbers, in words (8-bit scale factors and overflow, flushed subnormals); absent: none */
+  planSettings?: string;
   verdict: SummaryVerdict;
   /** the top reasons for the verdict, one sentence each */
   reasons: string[];

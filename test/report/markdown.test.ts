@@ -2,6 +2,8 @@ import { readFileSync } from "node:fs";
 import { describe, expect, test } from "vitest";
 import { check } from "../../src/check.js";
 import { renderCheckMarkdown } from "../../src/report/markdown-check.js";
+import { renderHtmlReport } from "../../src/report/html.js";
+import { reportModel } from "../../src/report/report-from-check.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { escapeMarkdown, markdownCode, markdownTable } from "../../src/report/markdown.js";
 
@@ -142,5 +144,32 @@ describe("check --md with no static loss scale", () => {
     const works = answer.remedies.find((r) => r.works)!;
     const md = renderCheckMarkdown(result);
     expect(md).toContain(`\n- first remedy that works: ${escapeMarkdown(works.sentence)}\n`);
+  });
+});
+
+describe("the plan's conversion settings in Markdown and HTML", () => {
+  // an invented 8-bit plan: the OCP 8-bit specification defines a saturating and a non-saturating conversion
+  const text = (overflow: string) =>
+    [
+      "name: parcel-sorter",
+      "input: { features: 64 }",
+      "training: { batch: 32, loss: { kind: cross-entropy, classes: 12 } }",
+      `precision: { name: eight, activations: e4m3, weights: e4m3, gradients: e5m2, scaling: none, overflow: ${overflow} }`,
+      "layers: [{ type: dense, width: 12, init: he-normal }]",
+    ].join("\n");
+  const checked = (overflow: string) => {
+    const parsed = parseSpec(text(overflow), "parcel.yaml");
+    if (!parsed.ok) throw new Error("does not parse");
+    return check(parsed.spec);
+  };
+
+  test("Markdown names them beside the plan, so two plans differing only in them read apart", () => {
+    expect(renderCheckMarkdown(checked("saturate"))).toContain("precision plan `eight` (8-bit without scale factors, saturating on overflow).\n");
+    expect(renderCheckMarkdown(checked("infinity-or-nan"))).toContain("precision plan `eight` (8-bit without scale factors, infinity or NaN on overflow).\n");
+  });
+
+  test("the HTML report names them among its facts", () => {
+    const html = renderHtmlReport(reportModel(checked("infinity-or-nan"), { version: "test" }));
+    expect(html).toContain("<dt>precision plan</dt><dd>eight (8-bit without scale factors, infinity or NaN on overflow)</dd>");
   });
 });
