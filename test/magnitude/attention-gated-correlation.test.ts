@@ -24,7 +24,7 @@ function gradientDifferences(yaml: string, file: string, draws: number): Map<str
 // gradients share as much at two buoys as at one, and with the ReLU's shared mean the value weight gradient and the
 // lift layer's bias gradient sum coherently. Before this rule the value gradient shared nothing across samples (the
 // value weight gradient 1.08 binades under the simulation, median of 9 draws) and the input gradient took the output's
-// correlations (the lift bias gradient 0.95 binade over); now 0.21 and 0.09.
+// correlations (the lift bias gradient 0.95 binade over); now 0.22 and 0.11.
 const BUOYS = `name: swell-summary
 description: an invented summariser of swell along a line of buoys
 input: { features: 32, positions: 16, scale: 1 }
@@ -50,7 +50,7 @@ layers:
 // E[φ(g)φ(g')] of the gates of two samples, instead of handing the layers below the output's sample correlation for
 // two buoys as well. Before this rule (median of 9 draws): gate, up and down weight gradients 0.35–0.40 binade under
 // the simulation, the dense layer's weight and bias gradients 0.42 and 0.69 over, the value weight gradient 0.58 under
-// and the output projection's 0.49 over; now all within 0.4.
+// and the output projection's 0.49 over; now all within 0.45.
 const GATED = BUOYS.replace(
   "  - flatten\n",
   "  - { type: dense, name: mid, width: 64, init: he-normal }\n  - relu\n  - { type: gated-feed-forward, name: ff, hidden: 128, activation: relu }\n  - flatten\n",
@@ -88,9 +88,9 @@ describe("attention and the gated product carry the cross-sample pairs into the 
       expect(diff, `${id} is compared`).toBeDefined();
       expect(Math.abs(diff!), `${id}: ${diff!.toFixed(2)} binades`).toBeLessThan(TOLERANCE);
     }
-    // Held to a larger tolerance, with the diagnosis: the lift bias gradient is 0.51 binade under the simulation (0.24
+    // Held to a larger tolerance, with the diagnosis: the lift bias gradient is 0.56 binade under the simulation (0.24
     // before). The gated rule agrees with its float64 kernel when the gradient is drawn independently of the forward
-    // values (test/ops/cross-sample-correlation.test.ts), and the attention-only network above agrees here (0.09); what
+    // values (test/ops/cross-sample-correlation.test.ts), and the attention-only network above agrees here (0.11); what
     // is left is the squared-error seed 2(y − t), which at 8 outputs keeps a part aligned with the forward values
     // through the gated product, shared by every sample and buoy, which gradient independence leaves out (the same
     // kind of disagreement as the transformer example's final norm in the standing check's known failures)
