@@ -14,7 +14,7 @@
  *
  * All randomness comes from one seeded source per draw (createRandom of src/numeric), never from a global one.
  */
-import { getFormat, roundArrayInPlace, roundTo, type Format, type RoundOptions } from "../formats/index.js";
+import { getFormat, roundTo, type Format, type RoundOptions } from "../formats/index.js";
 import { batchShape, buildGraph, sampleElements, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
@@ -22,7 +22,7 @@ import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import type { RoundFunction } from "../numeric/matmul.js";
 import { createRandom, type RandomSource } from "../numeric/random.js";
-import { applyScales, storageScales } from "./scaling.js";
+import { applyScales, roundScaledInPlace, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
 import { measureTensor, medianStats, selectElements } from "./stats.js";
 import type { MeasuredTensor, SimulateOptions, SimulationLossScaleOrigin, SimulationResult, StepRecord, TensorStats } from "./types.js";
@@ -99,11 +99,14 @@ function roundOptionsFor(options: RoundOptions, format: Format): RoundOptions {
   return format.bits === 8 ? options : { ...options, overflow: "infinity-or-nan" };
 }
 
-/** Round in place to a format, through the plan's 8-bit scale factors when it has them. */
+/**
+ * Round in place to a format, through the plan's 8-bit scale factors when it has them (per-block scales clamp inside
+ * the element range where E8M0 held the block's scale: src/simulate/scaling.ts).
+ */
 function storeIn(setup: Setup, format: Format, data: Float64Array): void {
   const scales = storageScales(data, format, setup.plan.scaling);
   applyScales(data, scales);
-  roundArrayInPlace(format, data, roundOptionsFor(setup.roundOptions, format));
+  roundScaledInPlace(format, data, scales, roundOptionsFor(setup.roundOptions, format));
   applyScales(data, scales, true);
 }
 
@@ -612,6 +615,13 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
       setup.accumulate === Math.fround
         ? `Products accumulate in binary32${setup.plan.accumulate === "binary32" ? "" : ` (for the plan's ${setup.plan.accumulate})`}: every product and partial sum is rounded, over blocks of 256 terms.`
         : `Products accumulate in ${setup.plan.accumulate}: every product and partial sum is rounded, summed in order.`,
+    );
+  }
+  const eightBit = Object.values(setup.formats).some((f) => f.bits === 8);
+  if (eightBit && setup.plan.scaling === "block") {
+    // the block conversion's own clamp (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4)
+    list.push(
+      "8-bit tensors are stored with one power-of-two scale per block of 32 elements (E8M0, 2^-127 to 2^127); each block's conversion clamps its elements to the largest finite value (counted as clipped), so only a block that would need a scale above 2^127 overflows or saturates as the plan says.",
     );
   }
   if (setup.wantedMicroBatches > 1) {

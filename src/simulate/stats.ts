@@ -2,9 +2,9 @@
  * Statistics of one tensor as the simulator sees it: magnitudes of the binary64 values (before storage
  * rounding) and what storing them in a format does, counted with the format model (src/formats countClasses).
  */
-import { countClasses, type Format, type RoundOptions } from "../formats/index.js";
-import { applyScales } from "./scaling.js";
-import type { TensorStats } from "./types.js";
+import type { Format, RoundOptions } from "../formats/index.js";
+import { applyScales, countScaled, type StorageScales } from "./scaling.js";
+import type { FormatCounts, TensorStats } from "./types.js";
 
 /** Nonzero magnitudes kept for quantiles; larger tensors are sampled at a fixed stride (deterministic). */
 const QUANTILE_SAMPLE = 4096;
@@ -30,9 +30,10 @@ function quantile(sorted: Float64Array, p: number): number {
 /**
  * Measure a tensor: exact zeros, rms of the nonzero elements, largest magnitude, quantiles of the nonzero
  * magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format` (after
- * multiplying by the storage scales of 8-bit scaling, when given).
+ * multiplying by the storage scales of 8-bit scaling, when given; with per-block scales, also the share the block
+ * conversion's own clamp clipped).
  */
-export function measureTensor(data: Float64Array, format: Format, options: RoundOptions, scales: Float64Array | number = 1): TensorStats {
+export function measureTensor(data: Float64Array, format: Format, options: RoundOptions, scales: StorageScales = 1): TensorStats {
   const n = data.length;
   let zeros = 0;
   let sumSquares = 0;
@@ -65,22 +66,24 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
     stored = Float64Array.from(data);
     applyScales(stored, scales);
   }
-  const c = countClasses(format, stored, options);
+  const { counts: c, clipped } = countScaled(format, stored, scales, options);
   const total = n > 0 ? n : 1;
+  const counts: FormatCounts = {
+    format: format.name,
+    flushed: c.flushed / total,
+    subnormal: c.subnormal / total,
+    overflowed: c.overflowed / total,
+    saturated: c.saturated / total,
+    nonFinite: (c.infinities + c.nans) / total,
+  };
+  if (typeof scales !== "number") counts.clipped = clipped / total;
   return {
     elements: n,
     zeroFraction: zeros / total,
     rms: nonzero > 0 ? Math.sqrt(sumSquares / nonzero) : 0,
     max,
     quantiles: [quantile(sorted, 0.01), quantile(sorted, 0.1), quantile(sorted, 0.5), quantile(sorted, 0.9), quantile(sorted, 0.99)],
-    counts: {
-      format: format.name,
-      flushed: c.flushed / total,
-      subnormal: c.subnormal / total,
-      overflowed: c.overflowed / total,
-      saturated: c.saturated / total,
-      nonFinite: (c.infinities + c.nans) / total,
-    },
+    counts,
   };
 }
 
@@ -96,19 +99,21 @@ export function medianStats(draws: readonly TensorStats[]): TensorStats {
   if (first === undefined) throw new RangeError("medianStats needs at least one draw");
   if (draws.length === 1) return first;
   const pick = (f: (s: TensorStats) => number): number => median(draws.map(f));
+  const counts: FormatCounts = {
+    format: first.counts.format,
+    flushed: pick((s) => s.counts.flushed),
+    subnormal: pick((s) => s.counts.subnormal),
+    overflowed: pick((s) => s.counts.overflowed),
+    saturated: pick((s) => s.counts.saturated),
+    nonFinite: pick((s) => s.counts.nonFinite),
+  };
+  if (first.counts.clipped !== undefined) counts.clipped = pick((s) => s.counts.clipped ?? 0);
   return {
     elements: first.elements,
     zeroFraction: pick((s) => s.zeroFraction),
     rms: pick((s) => s.rms),
     max: pick((s) => s.max),
     quantiles: [0, 1, 2, 3, 4].map((i) => pick((s) => s.quantiles[i]!)) as TensorStats["quantiles"],
-    counts: {
-      format: first.counts.format,
-      flushed: pick((s) => s.counts.flushed),
-      subnormal: pick((s) => s.counts.subnormal),
-      overflowed: pick((s) => s.counts.overflowed),
-      saturated: pick((s) => s.counts.saturated),
-      nonFinite: pick((s) => s.counts.nonFinite),
-    },
+    counts,
   };
 }

@@ -77,8 +77,14 @@ export interface FormatCounts {
   subnormal: number;
   /** finite values that became infinite or NaN */
   overflowed: number;
-  /** finite values clamped to the largest finite value */
+  /** finite values clamped to the largest finite value (with per-block scales: only in blocks whose scale E8M0 clamped) */
   saturated: number;
+  /**
+   * with per-block scale factors only: values the block conversion clipped to the largest finite value in a block whose
+   * scale was not clamped (its maximum put past the largest value by the floor rule, by at most 2^(emax+1)/max; OCP MX
+   * v1.0 §6, from memory). Part of the conversion, as rounding is: neither an overflow nor a saturation
+   */
+  clipped?: number;
   /** values that were already infinite or NaN before storing */
   nonFinite: number;
 }
