@@ -519,8 +519,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       logVar,
       rule: ctx.ledger ? () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share` : "",
     });
-    const D = layer.input.layout === "features" ? layer.input.features : 1;
-    const input = linearGradient(inputQ, heads.logVar, D);
+    const input = linearGradient(inputQ, heads.logVar, inWidth);
     input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
     // what two samples share reaches the input by the value and query paths (the key gradients share nothing across
     // samples); W_vᵀ and W_qᵀ keep their pair moments, and the independent W_v, W_q leave no pairs between the paths
