@@ -117,6 +117,8 @@ export interface Curvature {
   diagonalSquare: number;
   /** E[Σ_j M_ij²], the diagonal's square included */
   rowSquares: number;
+  /** M·1 = 0, every row summing to zero (a layer norm's centring): M holds nothing of a mean its input shares over features */
+  centred?: boolean;
 }
 
 

@@ -331,7 +331,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     // the gradient holds M_ii·φ(u_i) of its own unit, which φ'(u_i) does not gate independently: its square is
     // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and its mean over the data, E[φ'φ]·M_ii, is the same for every
     // sample (a shared part the bias gradient sums coherently)
-    const self = selfMoments(name, stash);
+    const self = selfMoments(name, stash, curvature.centred === true);
     gradient.q = Math.max(gradient.q + curvature.diagonalSquare * (self.second - d2 * self.outputSecond), 0);
     if (output.q > 0) ratio = gradient.q / output.q;
     if (ledger) rule = selfGateRule(name, derivativeSecond, ratio);
@@ -348,29 +348,31 @@ function selfGateRule(name: string, derivativeSecond: number, ratio: number): Te
  * E[φ'(u)·φ(u)], E[φ'(u)²·φ(u)²] and E[φ(u)²] of an activation's input u (its zeros mapped through φ(0), φ'(0)):
  * closed forms for the rectifiers and the identity (half-normal moments), quadrature for the smooth ones.
  */
-function selfMoments(name: string, stash: ActivationStash): { mean: number; second: number; outputSecond: number } {
+function selfMoments(name: string, stash: ActivationStash, centred: boolean): { mean: number; second: number; outputSecond: number } {
   const input = stash.input;
   const keep = 1 - input.zeroFraction;
   const q = keep > 0 ? input.q / keep : 0;
   const a = name === "leaky-relu" ? (stash.slope ?? 0) : name === "identity" ? 1 : 0;
+  const at = activationFunction(name as ActivationName, stash.slope);
+  // a curvature whose rows sum to zero (a layer norm's centring above) sees only φ − E[φ]: M·(E[φ]·1) = 0
+  const c = centred ? keep * gaussianExpectationSplit(at.f, q) + input.zeroFraction * at.f(0) : 0;
   let mean: number;
   let second: number;
   let outputSecond: number;
-  if (name === "relu" || name === "leaky-relu" || name === "identity") {
+  if (!centred && (name === "relu" || name === "leaky-relu" || name === "identity")) {
     // E[u·1(u>0)] = √(q/2π), E[u²·1(u>0)] = q/2; φ'φ = u on the positive side, a²·u on the negative
     mean = (1 - a * a) * Math.sqrt(q / (2 * Math.PI));
     second = (q * (1 + a * a * a * a)) / 2;
     outputSecond = (q * (1 + a * a)) / 2;
   } else {
-    const { f, df } = activationFunction(name as ActivationName, stash.slope);
-    mean = gaussianExpectationSplit((u) => df(u) * f(u), q);
-    second = gaussianExpectationSplit((u) => (df(u) * f(u)) ** 2, q);
-    outputSecond = gaussianExpectationSplit((u) => f(u) ** 2, q);
+    const { f, df } = at;
+    mean = gaussianExpectationSplit((u) => df(u) * (f(u) - c), q);
+    second = gaussianExpectationSplit((u) => (df(u) * (f(u) - c)) ** 2, q);
+    outputSecond = gaussianExpectationSplit((u) => (f(u) - c) ** 2, q);
   }
   // an element the input holds at zero maps to φ(0)·φ'(0) (relu'(0) = 0 as implementations define it)
-  const at = activationFunction(name as ActivationName, stash.slope);
-  const zeroValue = at.f(0) * at.df(0);
-  const zeroOutput = at.f(0) * at.f(0);
+  const zeroValue = (at.f(0) - c) * at.df(0);
+  const zeroOutput = (at.f(0) - c) * (at.f(0) - c);
   return {
     mean: keep * mean + input.zeroFraction * zeroValue,
     second: keep * second + input.zeroFraction * zeroValue * zeroValue,

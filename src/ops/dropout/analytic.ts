@@ -37,6 +37,13 @@ export const dropoutRule: AnalyticRule<null> = {
     // as forward: pairs keep their product, q grows by 1/keep
     if (output.positionCorrelation !== undefined) input.positionCorrelation = output.positionCorrelation * keep;
     if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation * keep;
+    // the loss's curvature below the mask: E[D·M·D] over independent masks D = diag(m_i/keep), E[m_i·m_j]/keep² = 1 off
+    // the diagonal and 1/keep on it, so M + (1/keep − 1)·diag(M) (derived, as Curvature)
+    const m = output.curvature;
+    if (m !== undefined) {
+      const diagonalSquare = ratio * ratio * m.diagonalSquare;
+      input.curvature = { diagonal: ratio * m.diagonal, diagonalSquare, rowSquares: Math.max(m.rowSquares - m.diagonalSquare, 0) + diagonalSquare };
+    }
     return { input, factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };

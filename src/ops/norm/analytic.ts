@@ -11,7 +11,7 @@ import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
 import { NO_FACTORS, correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
-import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
 export interface NormStash {
@@ -156,6 +156,11 @@ export const normRule: AnalyticRule<NormStash> = {
       shape: "gaussian",
       logVar: output.logVar + (layer.family === "batch-norm" ? 0 : stash.input.logVar),
     };
+    if (curvature !== undefined && layer.family !== "batch-norm") {
+      input.curvature = normPullback(curvature, ratio, stash.normalisedSecond);
+      // a layer norm's Jacobian ends in the centring P = I − 1·1ᵀ/n, so P·M·P has rows summing to zero (its definition)
+      if (layer.family === "layer-norm") input.curvature.centred = true;
+    }
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
     else if (output.shared !== undefined) input.shared = ratio * output.shared;
@@ -175,3 +180,20 @@ export const normRule: AnalyticRule<NormStash> = {
     };
   },
 };
+
+/**
+ * Curvature at the input of a layer or RMS norm, y = g·z/√(s² + ε) per position, for the weights below it: what they
+ * sum is E[δ_z·zᵀ] = E[∂δ_z/∂z]·s² (Stein's lemma), with δ_z = Jᵀ·M·y. For Gaussian z of n features,
+ * E[Jᵀ·M·y·zᵀ] = g²/(s² + ε)·s²·(M − ρ·(tr M·I + 2M)/n), ρ = s²/(s² + ε) (E[(uᵀMu)·u uᵀ] = (tr M·I + 2M)/(n(n + 2))
+ * for u uniform on the sphere; the centring's one direction and the 2M/n are left out, as in the second-moment rule):
+ * the norm's scale invariance takes the diagonal's mean ρ·tr M/n out of M (derived; M's diagonal entries taken as
+ * independent draws, as in Curvature).
+ */
+export function normPullback(m: Curvature, ratio: number, rho: number): Curvature {
+  const diagonalSquare = ratio * ratio * Math.max(m.diagonalSquare - (2 * rho - rho * rho) * m.diagonal * m.diagonal, 0);
+  return {
+    diagonal: ratio * (1 - rho) * m.diagonal,
+    diagonalSquare,
+    rowSquares: ratio * ratio * Math.max(m.rowSquares - m.diagonalSquare, 0) + diagonalSquare,
+  };
+}
