@@ -256,7 +256,7 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): 
     return `<p class="not-evaluated"><strong>${statusHtml}</strong> This check did not work out a loss-scale window for the plan.</p>${notesHtml}`;
   }
   if (summary.status === "not-needed") {
-    return `<p>${statusHtml} Whether any gradient overflows or flushes unscaled is in the tensors' findings.</p>${notesHtml}`;
+    return `<p>${statusHtml} Whether any gradient overflows or flushes without a loss scale is in the tensors' findings.</p>${notesHtml}`;
   }
   if (summary.status === "empty") {
     return `<p class="empty-window"><strong>${statusHtml}</strong> ${e(summary.reason)}</p>${notesHtml}`;

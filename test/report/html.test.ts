@@ -240,3 +240,27 @@ describe("the ledger's sentence says which size the factors add up to", () => {
     );
   });
 });
+
+describe("the loss-scale section when no loss scale is needed", () => {
+  test("does not call gradients held with per-tensor scale factors 'unscaled'", async () => {
+    const { check } = await import("../../src/check.js");
+    const { reportModel } = await import("../../src/report/report-from-check.js");
+    const { parseSpec } = await import("../../src/spec/index.js");
+    // an invented 8-bit plan: e5m2 gradients with per-tensor scale factors need no loss scale, but they are scaled
+    const parsed = parseSpec(
+      [
+        "name: parcel-sorter",
+        "input: { features: 64 }",
+        "training: { batch: 32, loss: { kind: cross-entropy, classes: 12 } }",
+        "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: tensor }",
+        "layers: [{ type: dense, width: 12, init: he-normal }]",
+      ].join("\n"),
+      "parcel.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const html = renderHtmlReport(reportModel(check(parsed.spec), { version: "test" }));
+    expect(html).toContain("Loss scale: not needed (gradients are held in e5m2 with per-tensor scale factors).");
+    expect(html).toContain("Whether any gradient overflows or flushes without a loss scale is in the tensors' findings.");
+    expect(html).not.toContain("flushes unscaled");
+  });
+});
