@@ -33,8 +33,10 @@ export function scalesText(cast: CastResult): string {
   const s = cast.scales;
   if (!s) return "";
   if (s.fits) return `${powerText(s.lowest)} … ${powerText(s.highest)}`;
-  const n = s.belowSubnormalAtHighest;
-  return `none; at ${powerText(s.highest)}, ${formatCount(n)} value${n === 1 ? " falls" : "s fall"} below the smallest subnormal`;
+  // with subnormals flushed (--flush-subnormals) a value flushes below the smallest normal, not the smallest subnormal
+  const n = cast.flushSubnormals ? s.belowNormalAtHighest : s.belowSubnormalAtHighest;
+  const bound = cast.flushSubnormals ? "smallest normal (subnormals flushed)" : "smallest subnormal";
+  return `none; at ${powerText(s.highest)}, ${formatCount(n)} value${n === 1 ? " falls" : "s fall"} below the ${bound}`;
 }
 
 /** The verdict of one cast with its leading count, e.g. "breaks: 12 overflow". */

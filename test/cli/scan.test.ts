@@ -35,6 +35,17 @@ describe("headroom scan", () => {
     expect(one.stdout).toContain("none; at 2^0, 1 value falls below the smallest subnormal");
   });
 
+  it("with --flush-subnormals counts what falls below the smallest normal, where a value then flushes", () => {
+    // 6e4 fits binary16 only at 2^0; there 1e-4 is normal (above 2^-14 ≈ 6.1e-5) but 1e-6 and 3e-6 are subnormal
+    // (IEEE 754-2019 §3.3): kept by a plain cast, flushed by hardware that flushes subnormals
+    const sub = files.write("sub.npy", npyBytes(1, "<f4", [4], encode("F32", [6e4, 1e-4, 1e-6, 3e-6])));
+    const plain = runCli(["scan", sub, "--to", "binary16", "--all"]);
+    expect(plain.stdout).toMatch(/binary16 +safe .* 2\^-5 … 2\^0\n/);
+    const flushed = runCli(["scan", sub, "--to", "binary16", "--flush-subnormals"]);
+    expect(flushed.status).toBe(1);
+    expect(flushed.stdout).toContain("none; at 2^0, 2 values fall below the smallest normal (subnormals flushed)");
+  });
+
   it("exit 0 when every tensor is safe; the table says so", () => {
     const run = runCli(["scan", safe, gains]);
     expect(run.stderr).toBe("");
