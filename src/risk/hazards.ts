@@ -2,13 +2,15 @@
  * Operation hazards: places where an operation, not a stored tensor, overflows or loses values. Each site
  * is judged against the formats of the plan entries that hold its result.
  */
+import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
+import { blockScaledRiskCached } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
-import { energyBelow, nonzeroElements, probabilityAnyAbove } from "./profile.js";
-import { worstVerdict } from "./tensor.js";
+import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
+import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { distinctNumbers, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
@@ -21,6 +23,11 @@ export interface HazardContext {
   accumulate: RangeLimits;
   /** the static loss scale multiplying the loss (1 when none) */
   lossScale: number;
+  /**
+   * the plan's scale factors for 8-bit formats (`none` when absent): a loss value kept in an 8-bit format is stored
+   * with them, as every 8-bit tensor of the plan is
+   */
+  scaling?: "none" | "tensor" | "block";
   /** Adam's β2, which shrinks the stored second moment to (1 − β2)·g² on the first step */
   beta2: number;
   /** how per-worker gradients are combined */
@@ -72,6 +79,9 @@ class Draft {
   extra = Number.NaN;
   /** the result overflows only where it is kept in the activation format, not widened */
   notWidened = false;
+  /** the 8-bit scale factor the value is stored with: 0 none, 1 per tensor (2^scaleLog2), 2 its own block's */
+  scaled = 0;
+  scaleLog2 = Number.NaN;
   /** the tensor contributing most to a network-wide count, and its share of it ("" and NaN for none) */
   top = "";
   topValue = Number.NaN;
@@ -158,6 +168,8 @@ function fill(
   draft.wording = wording;
   draft.extra = extra;
   draft.notWidened = notWidened;
+  draft.scaled = 0;
+  draft.scaleLog2 = Number.NaN;
   draft.top = "";
   draft.topValue = Number.NaN;
   draft.topLayer = "";
@@ -348,9 +360,15 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       const limit = Number.isInteger(critical) ? limitNumber(critical) : digits;
       // what multiplies a term: the other terms of a sum, the loss scale (none said when it is 1)
       const factors = [site.terms > 1 ? `${site.terms} terms summed` : "", context.lossScale !== 1 ? `times the loss scale ${scaleWords(context.lossScale)}` : ""].filter((x) => x !== "");
+      const scaled =
+        draft.scaled === 1
+          ? ` with its per-tensor scale factor ${draft.scaleLog2 === 0 ? "1" : `2^${draft.scaleLog2}`}`
+          : draft.scaled === 2
+            ? " past its own block's largest scale factor, 2^127,"
+            : "";
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`}${factors.length > 0 ? ` (${factors.join(", ")})` : ""} ` +
-        `overflows ${format} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
+        `overflows ${format}${scaled} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
         `(predicted ${predicted}); probability ${probabilityWords(value)} per step${side}` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
@@ -494,17 +512,38 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
 }
 
 // The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction); held in
-// the activation and the accumulate format as the sum of squares above.
+// the activation and the accumulate format as the sum of squares above. In an 8-bit format of a plan with scale
+// factors it is stored as the plan's other 8-bit tensors are: with a per-tensor scale from its predicted max, the
+// tensor rule (src/risk/tensor.ts), or as a block of one, whose shared exponent follows the value itself and whose
+// conversion clamps it into the element range, so that only a value needing a scale past E8M0's 2^127 leaves it
+// (OCP MX v1.0 §6, from memory; src/risk/blocks.ts)
 function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardContext, list: DraftList): void {
-  const total = profileCopy(input, 1, 0, Math.max(1, site.terms) * context.lossScale);
+  const factor = Math.max(1, site.terms) * context.lossScale;
+  const total = profileCopy(input, 1, 0, factor);
   const t = context.thresholds;
   const first = context.activations.format === context.accumulate.format ? 1 : 0;
   for (let k = first; k < 2; k++) {
     const limits = k === 0 ? context.activations : context.accumulate;
-    const value = probabilityAnyAbove(total, limits.overflowLevel);
-    const critical = limits.overflowLevel / (Math.max(1, site.terms) * context.lossScale);
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", value, critical,
-      t.overflowAtRisk, t.overflowFails, k === 0, LOSS_VALUE, input.rms, k === 0);
+    const format = FORMATS[limits.format];
+    const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
+    let level = limits.overflowLevel;
+    let scaleLog2 = 0;
+    if (scaling === "block") {
+      level = blockScaledRiskCached(format).scaleClampLevel;
+    } else if (scaling === "tensor") {
+      scaleLog2 = perTensorScaleLog2(profileStatistics(total, t).max, limits.maxFinite);
+      level = limits.overflowLevel * 2 ** -scaleLog2;
+    }
+    const value = probabilityAnyAbove(total, level);
+    // a saturating per-tensor conversion clips past the scale's own quantile that often: the tensor rule's leeway
+    const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", value, level / factor,
+      atRisk, t.overflowFails, k === 0, LOSS_VALUE, input.rms, k === 0);
+    if (scaling !== "none") {
+      const draft = list.items[list.count - 1] as Draft;
+      draft.scaled = scaling === "tensor" ? 1 : 2;
+      draft.scaleLog2 = scaleLog2;
+    }
   }
 }
 

@@ -666,6 +666,7 @@ function hazardContext(
     optimizerStates: limitsFor(plan, plan.optimizerStates),
     accumulate: limitsFor(plan, plan.accumulate),
     lossScale,
+    scaling: plan.scaling,
     beta2: spec.training.optimizer.betas[1],
     workerGradients: spec.training.workerGradients,
     workers: spec.training.workers,

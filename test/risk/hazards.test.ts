@@ -1,7 +1,7 @@
 import { describe, expect, it } from "vitest";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, type HazardContext } from "../../src/risk/index.js";
-import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
+import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING } from "./limits.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { dense, features, he, makeSpec } from "../magnitude/build-spec.js";
@@ -145,6 +145,66 @@ describe("the loss value", () => {
     const scaled = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 }));
     expect(hazardVerdict(scaled)).toBe("fails");
     expect(scaled.findings[0]?.kind).toBe("loss-value-overflow");
+  });
+});
+
+describe("the loss value in an 8-bit format with scale factors", () => {
+  // a loss of 1000 kept in e4m3 (activations), the reduction in binary32: 1000 > 464, the non-saturating conversion's
+  // NaN bound without scale factors (OCP 8-bit specification; SCIENCE.md check value 13)
+  const loss = site({ kind: "loss-value", layer: "loss", terms: 1, input: profile({ shape: "constant", rms: 1000 }) });
+  const e4m3 = (scaling?: HazardContext["scaling"], activations = E4M3_NAN) => evaluateHazard(loss, context({ activations, ...(scaling === undefined ? {} : { scaling }) }));
+
+  it("without scale factors is judged as before: overflows e4m3 past 464", () => {
+    const plain = e4m3();
+    expect(plain.evaluations[0]?.criticalLevel).toBe(464);
+    expect(plain.evaluations[0]?.value).toBe(1);
+    expect(plain.evaluations[0]?.sentence).toMatch(/^The loss overflows e4m3 when it exceeds 464 \(predicted 1000\); probability 1 per step if the loss is kept in the activation format \(at risk\)\.$/);
+    expect(hazardVerdict(plain)).toBe("at-risk");
+    expect(e4m3("none")).toEqual(plain);
+    // a scaling setting touches only 8-bit formats: a binary16 plan reads the same with any of them
+    const half = evaluateHazard(loss, context({ accumulate: BINARY16 }));
+    expect(evaluateHazard(loss, context({ accumulate: BINARY16, scaling: "block" }))).toEqual(half);
+  });
+
+  it("with per-block scale factors, a block of one: clamped into the range, it overflows only past 2^127·2^9 = 2^136", () => {
+    // shared exponent ⌊log2 1000⌋ − 8 = 1, so 1000/2 = 500 rounds to 512 and is clamped to 448 (OCP MX v1.0 §6 /
+    // Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4): no NaN, under either overflow mode
+    for (const limits of [E4M3_NAN, E4M3_SATURATING]) {
+      const block = e4m3("block", limits);
+      expect(block.evaluations[0]?.value).toBe(0);
+      expect(block.evaluations[0]?.criticalLevel).toBe(2 ** 136);
+      expect(hazardVerdict(block)).toBe("fits");
+    }
+    expect(e4m3("block").evaluations[0]?.sentence).toMatch(/^The loss overflows e4m3 past its own block's largest scale factor, 2\^127, when it exceeds 8\.71e40 \(predicted 1000\); probability 0 per step/);
+    // past 2^136 ≈ 8.71e40 the shared exponent would pass E8M0's 127 (SCIENCE.md §1.4): the value leaves the range
+    const huge = evaluateHazard(site({ kind: "loss-value", layer: "loss", terms: 1, input: profile({ shape: "constant", rms: 1e41 }) }), context({ activations: E4M3_NAN, scaling: "block" }));
+    expect(huge.evaluations[0]?.value).toBe(1);
+    expect(huge.evaluations[0]?.verdict).toBe("at-risk");
+    // (and so does binary32's sum, past (2 − 2^-24)·2^127 ≈ 3.4e38: IEEE 754-2019 Table 3.5 with RNE)
+    expect(huge.evaluations[1]?.verdict).toBe("fails");
+  });
+
+  it("with a per-tensor scale factor 2^⌊log2(448/1000)⌋ = 2^-2, the loss overflows only past 464·4 = 1856", () => {
+    // the per-tensor rule of Micikevicius et al. 2022 (SCIENCE.md §3.4), from the loss's predicted max (1000: constant)
+    const tensor = e4m3("tensor");
+    expect(tensor.evaluations[0]?.criticalLevel).toBe(1856);
+    expect(tensor.evaluations[0]?.value).toBe(0);
+    expect(tensor.evaluations[0]?.sentence).toMatch(/^The loss overflows e4m3 with its per-tensor scale factor 2\^-2 when it exceeds 1856 \(predicted 1000\)/);
+    expect(hazardVerdict(tensor)).toBe("fits");
+  });
+
+  it("a loss that varies from draw to draw is judged by the tensor rule of an 8-bit tensor with a per-tensor scale", () => {
+    // the same number as the check gives a one-element tensor of that profile held in e4m3 with per-tensor scaling
+    const spread = profile({ shape: "constant", rms: 1000, log2Spread: 1 });
+    const hazard = evaluateHazard(site({ kind: "loss-value", layer: "loss", terms: 1, input: spread }), context({ activations: E4M3_NAN, scaling: "tensor" }));
+    const tensor: TensorPrediction = {
+      id: "loss/loss", layer: "loss", layerIndex: 0, family: "loss", role: "loss", slot: "activations", shape: [1], source: "predicted", start: spread, end: spread,
+    } as TensorPrediction;
+    const options = { judged: true, perTensorScaling: true, thresholds: DEFAULT_THRESHOLDS };
+    const rule = tensorFormatRisk(tensor, E4M3_NAN, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options);
+    expect(rule.worst.overflowRisk).toBeGreaterThan(0);
+    expect(hazard.evaluations[0]?.value).toBeCloseTo(rule.worst.overflowRisk, 15);
+    expect(hazard.evaluations[0]?.sentence).toContain(`per-tensor scale factor 2^${rule.scaleLog2.start} `);
   });
 });
 
