@@ -158,8 +158,10 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
     ...(withVariants ? [{ title: "variant" }] : []),
     { title: "verdict" },
     ...formats.map((format): TableColumn => ({ title: format })),
-    { title: "loss scale" },
-    { title: "window" },
+    // left always, as in the Markdown table: "auto" right-aligned "2^5" when every row had a window and left-aligned it
+    // beside a "not needed", so the column moved from one run to the next
+    { title: "loss scale", align: "left" },
+    { title: "window", align: "left" },
     { title: "worst tensor" },
     { title: "risk", align: "right" },
   ];

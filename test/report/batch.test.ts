@@ -265,3 +265,28 @@ describe("a worst finding counted in elements", () => {
     expect(formatRiskValue({ value: 4_500_000.5, measure: "count" })).toBe("4.5M elements");
   });
 });
+
+describe("the loss-scale columns of the batch table", () => {
+  test("are left-aligned whether or not some row says 'not needed', as the Markdown table aligns them", () => {
+    const windowRow = (index: number, pickLog2: number): BatchRow => ({
+      index,
+      file: `sweep/w${index}.yaml`,
+      variant: null,
+      status: "ok",
+      summary: {
+        name: `w${index}`,
+        verdict: "fits",
+        formats: [{ format: "binary16", verdict: "fits" }],
+        lossScale: { status: "window", pickLog2, lowLog2: -9, highLog2: 18 },
+        worst: null,
+      },
+    });
+    const lines = renderBatchText([windowRow(0, 5), windowRow(1, 12)]).split("\n");
+    const header = lines[0]!;
+    const column = header.indexOf("loss scale");
+    expect(lines[2]!.slice(column, column + 3)).toBe("2^5");
+    expect(lines[3]!.slice(column, column + 4)).toBe("2^12");
+    const windowColumn = header.indexOf("window");
+    expect(lines[2]!.slice(windowColumn).startsWith("2^-9..2^18")).toBe(true);
+  });
+});
