@@ -20,8 +20,15 @@ export interface ResidualStash {
 /** The gradient the branch starts from: α·δ_out, with its ledger factor (worded only with a ledger). */
 export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: boolean): { gradient: Gradient; factor: Factor } {
   const alpha = (layer.spec as ResidualLayer).multiplier;
+  const a2 = alpha * alpha;
+  const gradient: Gradient = { ...output, q: a2 * output.q };
+  // δ_F = α·δ_out: what samples share of it scales by α² like q, and the loss's curvature in the branch's output
+  // features by α² too, since the branch enters the loss as α·F (∂δ_F/∂F = α²·M) (derived, as Curvature)
+  if (output.shared !== undefined) gradient.shared = a2 * output.shared;
+  const m = output.curvature;
+  if (m !== undefined) gradient.curvature = { ...m, diagonal: a2 * m.diagonal, diagonalSquare: a2 * a2 * m.diagonalSquare, rowSquares: a2 * a2 * m.rowSquares };
   return {
-    gradient: { ...output, q: alpha * alpha * output.q },
+    gradient,
     factor: factor(alpha * alpha, ledger ? () => `residual branch: multiplier² = ${fmt(alpha * alpha)}` : "", SOURCE),
   };
 }
