@@ -431,7 +431,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
 }
 
-const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout"]);
+const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "flatten"]);
 
 /**
  * What a gradient keeps on its way down: only the rectifier right before a max-pool may use the arg-max position,
@@ -442,7 +442,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (layer.family !== "max-pool" && input.windowMaximum !== undefined) delete input.windowMaximum;
   if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
   if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
-  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms and dropout only
+  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout and
+  // flattens only
   // (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
 }
@@ -556,7 +557,7 @@ function assumptions(spec: NetworkSpec): string[] {
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
     "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
-    "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms and dropout pass it on too (a norm takes the diagonal's mean out of it), and norms take it for their gain; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
+    "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
     "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",

@@ -80,6 +80,39 @@ ${PLAN}layers:
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
   });
 
+  it("through a flatten: a position-wise layer sees its own position's block of the curvature (2.64 and 0.23 binades low before)", () => {
+    // an invented kiln reader: 4 rows of 32 sensors, a row-wise ReLU layer, flattened into a 128-output head
+    const yaml = `name: kiln-rows
+description: invented
+input: { features: 32, positions: 4 }
+training: { batch: 1024, loss: { kind: mean-squared-error } }
+${PLAN}layers:
+  - { type: dense, name: rowwise, width: 32 }
+  - relu
+  - flatten
+  - { type: dense, name: head, width: 128 }
+`;
+    const d = measuredDifferences(yaml, "kiln-rows", /^rowwise\/(weight-gradient|activation-gradient)$/);
+    expect(d.size).toBe(2);
+    for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
+  });
+
+  it("a gated feed-forward layer under a wide head: its three weights (1.50, 1.65, 1.87 binades low before), and the head's bias (1.42)", () => {
+    // an invented loom-tension regressor: one gated block (ReLU gate) into 64 outputs, batch 2048. The head's bias
+    // sums the gated product's own mean, E[φ(g)·u] = E[φ'(g)]·Cov(g, u) for one unit (Stein's lemma)
+    const yaml = `name: loom-tension
+description: invented
+input: { features: 64 }
+training: { batch: 2048, loss: { kind: mean-squared-error } }
+${PLAN}layers:
+  - { type: gated-feed-forward, name: ff, hidden: 128, activation: relu }
+  - { type: dense, name: head, width: 64 }
+`;
+    const d = measuredDifferences(yaml, "loom-tension", /^(ff\/weight-gradient:(gate|up|down)|head\/weight-gradient:bias)$/);
+    expect(d.size).toBe(4);
+    for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.4);
+  });
+
   it("the gain of a norm right before a softmax classifier (1.93 binades low before)", () => {
     // an invented reef-sound classifier: the gain gradient Σ_t x̂·δ holds N·g·E[x̂²]·(Wᵀ·M·W)_ii in every micro-batch,
     // of one sign for every feature

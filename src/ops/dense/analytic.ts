@@ -83,7 +83,8 @@ export function linearBackward(
   const curvature = output.curvature;
   // the loss's curvature through these weights: N·M·W·E[x xᵀ] in every micro-batch (see Curvature), E[x xᵀ] taken as
   // E[x²]·I (what the samples share of x is in gradientSum's pairs)
-  const aligned = curvature === undefined ? 0 : terms * terms * x.q * x.q * variance * curvature.rowSquares;
+  // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
+  const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * variance * curvature.rowSquares;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",

@@ -24,6 +24,7 @@ import {
 import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
+import { densePullback } from "../dense/analytic.js";
 
 const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field; SCIENCE.md §2.1, §2.9)";
 
@@ -33,7 +34,8 @@ export interface GatedStash {
   gate: Signal;
   up: Signal;
   product: Signal;
-  /** E[φ(g)²] and E[φ'(g)²] */
+  /** E[φ(g)], E[φ(g)²] and E[φ'(g)²] */
+  gateMean: number;
   gateSecond: number;
   gateDerivativeSecond: number;
   gateZeroFraction: number;
@@ -80,9 +82,14 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const sampleCorrelation = sampleCorrelationOf(gate);
     const sampleCrossed = crossMoments(spec.activation, slopeOf(spec), gate.q, sampleCorrelation, m);
     const sampleCross = { value: sampleCrossed.value, derivative: sampleCrossed.derivative, correlation: sampleCorrelation };
+    // one unit's gate and up read the same input through weights w_g, w_u, so over the data E[φ(g)·u] =
+    // E[φ'(g)]·Cov(g, u) (Stein's lemma) with Cov(g, u) = Σ_i w_g,i·w_u,i·Var(x_i): a mean of the unit the same for every
+    // sample and position, of random sign over units, whose square averages D·var_g·var_u·Var(x)²·E[φ']² (own algebra)
+    const variance = Math.max(input.q - sharedOf(input), 0);
+    const stein = m.derivativeMean * m.derivativeMean * wg.fanIn * ctx.variance(wg) * ctx.variance(wu) * variance * variance;
     const product: Signal = {
       q: m.second * up.q,
-      shared: sampleCross.value * (up.shared ?? 0),
+      shared: sampleCross.value * (up.shared ?? 0) + stein,
       mean: 0,
       zeroFraction: m.zeroFraction,
       shape: "gaussian",
@@ -91,7 +98,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       logVar: input.logVar + (kappa.forward + 2) / spec.hidden,
       gaussian: false,
     };
-    if (m.second > 0) product.positionCorrelation = Math.min((positionCross.value * correlation) / m.second, 1);
+    if (m.second > 0) product.positionCorrelation = Math.min((positionCross.value * correlation) / m.second + stein / product.q, 1);
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
     output.positionCorrelation = product.positionCorrelation ?? 0;
@@ -133,6 +140,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
         gate,
         up,
         product,
+        gateMean: m.mean,
         gateSecond: m.second,
         gateDerivativeSecond: m.derivativeSecond,
         gateZeroFraction: m.zeroFraction,
@@ -196,9 +204,11 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       },
     ];
     const N = ctx.batch * P;
-    const wgm = (weight: string, x: Signal, delta: Gradient): WeightGradientMoment => ({
+    const aligned = alignedParts(stash, output, N, D, spec.hidden, ctx.variance(wg), ctx.variance(wu), ctx.variance(wd));
+    const wgm = (weight: string, x: Signal, delta: Gradient, alignedQ: number): WeightGradientMoment => ({
       weight,
-      q: gradientSum(ctx.batch, P, delta, x),
+      q: gradientSum(ctx.batch, P, delta, x) + alignedQ,
+      alignedQ,
       coherentQ: N * N * x.q * delta.q,
       terms: N,
       zeroFraction: 0,
@@ -216,13 +226,35 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       factors: ledger?.input ?? NO_FACTORS,
       inner,
       weightGradients: [
-        wgm("gate", stash.input, gateGradient),
-        wgm("up", stash.input, upGradient),
-        wgm("down", stash.product, output),
+        wgm("gate", stash.input, gateGradient, aligned.gate),
+        wgm("up", stash.input, upGradient, aligned.up),
+        wgm("down", stash.product, output, aligned.down),
       ],
     };
   },
 };
+
+/**
+ * The parts of the three weight gradients the loss's curvature M (at the layer's output) aligns, the same in every
+ * micro-batch (see Curvature in ../types.ts): N²·E[x²]²·var_w·(row squares of the curvature the weights see). The down
+ * projection sees M; the product's curvature is M_h = W_downᵀ·M·W_down; up sees diag(φ(g))·M_h·diag(φ(g)) (E[φ(g)²] on
+ * its diagonal, E[φ(g)]² off it: independent units), gate diag(φ'(g)·u)·M_h·diag(φ'(g)·u) (E[φ'²]·E[u²] on the
+ * diagonal, nothing off it: u has mean zero) (own algebra, as the activation's pull-back)
+ */
+function alignedParts(stash: GatedStash, output: Gradient, N: number, D: number, hidden: number, wg: number, wu: number, wd: number): { gate: number; up: number; down: number } {
+  const m = output.curvature;
+  if (m === undefined) return { gate: 0, up: 0, down: 0 };
+  const h = densePullback(m, wd, D, hidden);
+  const mean2 = stash.gateMean * stash.gateMean;
+  const upRows = stash.gateSecond * stash.gateSecond * h.diagonalSquare + mean2 * mean2 * Math.max(h.rowSquares - h.diagonalSquare, 0);
+  const gateDiagonal = stash.gateDerivativeSecond * stash.up.q;
+  const x2 = stash.input.q * stash.input.q;
+  return {
+    down: N * N * stash.product.q * stash.product.q * wd * m.rowSquares,
+    up: N * N * x2 * wu * upRows,
+    gate: N * N * x2 * wg * gateDiagonal * gateDiagonal * h.diagonalSquare,
+  };
+}
 
 /** The forward ledger factors, made only with a ledger: the gate, up and product tensors' and the output's. */
 function forwardLedger(spec: GatedFeedForwardLayer, gateGain: number, upGain: number, productSecond: number, gateQ: number, downGain: number) {
