@@ -148,7 +148,8 @@ describe("batch norm in a plain ReLU network", () => {
     const layers: LayerSpec[] = [];
     for (let i = 0; i < 8; i++) layers.push(conv(`c${i}`, 16), { family: "batch-norm", name: `bn${i}`, path: ["bn", i], gain: 1, epsilon: 0 }, act(`a${i}`));
     const p = run(makeSpec([...layers, flatten("f"), dense("out", 10, lecun)], { input: image(16, 8, 8), loss: crossEntropy(10) }));
-    for (let i = 1; i < 7; i++) {
+    // (the stage right under the head, a7, also holds its own output through the loss's curvature: loss-curvature.test.ts)
+    for (let i = 1; i < 6; i++) {
       const ratio = meanSquare(tensor(p, `a${i}/activation-gradient`)) / meanSquare(tensor(p, `a${i + 1}/activation-gradient`));
       expect(ratio).toBeCloseTo(Math.PI / (Math.PI - 1), 9);
     }
