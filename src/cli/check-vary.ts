@@ -33,7 +33,7 @@ export async function checkVariants(
   const vary = textVarier(text, specJsonSchema());
   const measuredCache = new Map<string, Promise<Measurements>>();
   const reported = new Set<Measurements>();
-  const out: { variant: string; result: CheckAnswer }[] = [];
+  const out: { variant: string; result: CheckAnswer; warnings: string[] }[] = [];
   for (const variant of variants) {
     // the judge gives the check itself: a variant is rendered whole, so no batch summary is made of it
     const outcome = await evaluateText(path, text, variant, {
@@ -60,7 +60,7 @@ export async function checkVariants(
     }
     // as a plain check prints its spec's warnings, each variant's, named by the variant
     for (const warning of outcome.warnings ?? []) process.stderr.write(`warning: ${warning} [${variant.name}]\n`);
-    out.push({ variant: variant.name, result: outcome.summary });
+    out.push({ variant: variant.name, result: outcome.summary, warnings: outcome.warnings ?? [] });
   }
   return out;
 }

@@ -1,4 +1,5 @@
 import { check, CheckInputError } from "../check.js";
+import { formatSpecIssue } from "../spec/index.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
@@ -31,11 +32,18 @@ export function judgeOptions(flags: JudgeFlags): CheckOptions {
  * Load a spec and check it with the command's flags. Spec problems are printed one per line
  * (file:line:column: path: message) and end the command with exit code 2.
  */
-export async function loadAndCheck(path: string, flags: JudgeFlags, extra: CheckOptions = {}): Promise<CheckResult | undefined> {
+export async function loadAndCheck(
+  path: string,
+  flags: JudgeFlags,
+  extra: CheckOptions = {},
+  warnings?: string[],
+): Promise<CheckResult | undefined> {
   const options: CheckOptions = { ...extra, ...judgeOptions(flags) };
 
   const loaded = await loadSpecReporting(path);
   if (loaded === undefined) return undefined;
+  // the spec's warnings (printed on stderr) for outputs that carry them too, such as a CI comment
+  if (warnings !== undefined) for (const warning of loaded.warnings) warnings.push(formatSpecIssue(warning));
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const network = await loadMeasuredNetwork(loaded);
   try {
@@ -61,17 +69,18 @@ export interface CheckFlags extends JudgeFlags {
 /** `headroom check SPEC`: a verdict per format, the tensors at risk and the operation hazards. */
 export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
   // --vary (see src/cli/check-vary.ts): one check per variant, each named by its values
-  const runs = flags.vary
+  const warnings: string[] = [];
+  const runs: { variant: string | null; result: CheckResult | undefined; warnings?: string[] }[] = flags.vary
     ? await (await import("./check-vary.js")).checkVariants(path, flags.vary, flags)
-    : [{ variant: null, result: await loadAndCheck(path, flags) }];
+    : [{ variant: null, result: await loadAndCheck(path, flags, {}, warnings), warnings }];
   // the Markdown renderer (and the batch table code it shares) loads only for --md
   const renderMarkdown = flags.md ? (await import("../report/markdown-check.js")).renderCheckMarkdown : undefined;
   const texts: string[] = [];
-  for (const { variant, result } of runs) {
+  for (const { variant, result, warnings: warned } of runs) {
     if (result === undefined) continue;
     texts.push(
       renderMarkdown
-        ? renderMarkdown(result, { variant })
+        ? renderMarkdown(result, { variant, warnings: warned ?? [] })
         : flags.json
           ? renderCheckJson(result)
           : (variant ? `variant ${variant}\n\n` : "") +

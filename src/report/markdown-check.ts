@@ -18,6 +18,8 @@ export interface CheckMarkdownOptions {
   variant?: string | null;
   /** findings listed (default 10) */
   findings?: number;
+  /** the spec's warnings, one `file:line:column: key.path: message` line each (judged as written) */
+  warnings?: readonly string[];
 }
 
 const ENTRY_WORDS: Record<string, string> = {
@@ -92,6 +94,12 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
   if (unused.length > 0) {
     out += `\nRecorded statistics not used:\n`;
     for (const u of unused) out += `- ${escapeMarkdown(u.sentence)}\n`;
+  }
+  // as batch --md lists them: a CI comment is often all a reader sees, and the warnings go to stderr only
+  const warnings = options.warnings ?? [];
+  if (warnings.length > 0) {
+    out += "\nWarnings (judged as written):\n\n";
+    for (const warning of warnings) out += `- ${escapeMarkdown(warning)}\n`;
   }
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;

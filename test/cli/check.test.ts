@@ -215,3 +215,28 @@ describe("check --help tells the exit code the command gives", () => {
     expect(help).toContain('Exit code 1 when the verdict is "fails" (a format, the optimizer or the loss scale)');
   });
 });
+
+describe("check --md carries the spec's warnings, as batch --md does", () => {
+  it("lists each warning under the table and still prints it on stderr (specs/README: a warm-up longer than the horizon loads with a warning)", () => {
+    const dir = mkdtempSync(join(tmpdir(), "headroom-md-"));
+    const file = join(dir, "short.yaml");
+    writeFileSync(
+      file,
+      [
+        "name: short",
+        "input: { features: 10 }",
+        "training: { batch: 8, loss: { kind: cross-entropy, classes: 3 }, horizon: { steps: 10 }, optimizer: { kind: adam, warmup-steps: 100 } }",
+        "layers: [{ type: dense, width: 3 }]",
+      ].join("\n"),
+    );
+    const run = runCli(["check", "--md", file]);
+    const varied = runCli(["check", "--md", "--vary", "training.batch=4", file]);
+    rmSync(dir, { recursive: true, force: true });
+    expect(run.status).toBe(0);
+    const line = `${file}:3:`;
+    expect(run.stderr).toContain(`warning: ${line}`);
+    expect(run.stdout).toContain("\nWarnings (judged as written):\n\n- ");
+    expect(run.stdout).toMatch(/\n- .*short\.yaml:3:\d+: training\.optimizer\.warmup-steps: warm-up \(100 steps\) is longer than the horizon \(10 steps\)/);
+    expect(varied.stdout).toContain("\nWarnings (judged as written):\n\n- ");
+  });
+});
