@@ -9,9 +9,10 @@ export const PACKAGE_VERSION: string = (createRequire(import.meta.url)("../../pa
 
 /** `headroom report SPEC -o FILE.html`: one self-contained HTML page about a spec. */
 export async function runReport(path: string, flags: JudgeFlags & { output?: string }): Promise<void> {
-  const result = await loadAndCheck(path, flags, { ledger: true });
+  const warnings: string[] = [];
+  const result = await loadAndCheck(path, flags, { ledger: true }, warnings);
   if (result === undefined) return;
-  const html = renderHtmlReport(reportModel(result, { version: PACKAGE_VERSION }));
+  const html = renderHtmlReport(reportModel(result, { version: PACKAGE_VERSION, warnings }));
   if (flags.output === undefined || flags.output === "-") await writeOut(html);
   else writeFileAtomic(flags.output, html);
 }

@@ -517,6 +517,10 @@ export function renderHtmlReport(model: ReportModel): string {
     model.unusedStatistics !== undefined && model.unusedStatistics.length > 0
       ? `<p class="description">Recorded statistics not used:</p><ul>${model.unusedStatistics.map((u) => `<li>${e(u)}</li>`).join("")}</ul>`
       : "",
+    // the spec's warnings: judged as written, as the terminal and the Markdown say
+    model.warnings !== undefined && model.warnings.length > 0
+      ? `<p class="description">Warnings (judged as written):</p><ul>${model.warnings.map((w) => `<li>${e(w)}</li>`).join("")}</ul>`
+      : "",
     `</header>`,
     `<section class="verdict ${verdictClass(model.verdict)}" aria-labelledby="verdict"><h2 id="verdict">Verdict</h2>`,
     `<p class="verdict-word">${e(capitalised(verdictWords(model.verdict)))}</p>${reasons}<p class="caveat">${e(CAVEAT)}</p></section>`,

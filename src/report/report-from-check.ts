@@ -115,6 +115,8 @@ function lossScaleModels(result: CheckResult | CheckAnswer): ReportLossScale[] {
 export interface ReportModelOptions {
   /** the version printed in the footer */
   version: string;
+  /** the spec's warnings (the spec was judged as written), one `file:line:column: key.path: message` line each */
+  warnings?: readonly string[];
 }
 
 /** Turn a check result into what the HTML report shows. */
@@ -165,6 +167,7 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
     })),
     assumptions: [...result.assumptions, result.caution],
     ...(result.unusedStatistics !== undefined && result.unusedStatistics.length > 0 ? { unusedStatistics: result.unusedStatistics.map((u) => u.sentence) } : {}),
+    ...(options.warnings !== undefined && options.warnings.length > 0 ? { warnings: [...options.warnings] } : {}),
     version: options.version,
   };
 }

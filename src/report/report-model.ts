@@ -121,6 +121,8 @@ export interface ReportModel {
   assumptions: string[];
   /** rows of the spec's recorded statistics the check could not use, one sentence each (absent: all used, or none) */
   unusedStatistics?: string[];
+  /** the spec's warnings, one `file:line:column: key.path: message` line each (absent: none) */
+  warnings?: string[];
   /** the tool's version, printed in the footer */
   version: string;
 }

@@ -1,4 +1,4 @@
-import { existsSync, mkdtempSync, readdirSync, readFileSync, rmSync } from "node:fs";
+import { existsSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { basename, dirname, join } from "node:path";
 import { afterAll, beforeAll, describe, expect, test } from "vitest";
@@ -68,3 +68,25 @@ describe("check output is byte-identical across runs", () => {
     expect(second.stdout).toBe(first.stdout);
   });
 });
+
+describe("report carries the spec's warnings", () => {
+  test("lists each warning in the page's header, escaped, and still prints it on stderr (specs/README: a warm-up longer than the horizon loads with a warning)", () => {
+    const dir = mkdtempSync(join(tmpdir(), "headroom-report-warn-"));
+    const file = join(dir, "short.yaml");
+    writeFileSync(
+      file,
+      [
+        "name: short",
+        "input: { features: 10 }",
+        "training: { batch: 8, loss: { kind: cross-entropy, classes: 3 }, horizon: { steps: 10 }, optimizer: { kind: adam, warmup-steps: 100 } }",
+        "layers: [{ type: dense, width: 3 }]",
+      ].join("\n"),
+    );
+    const run = runCli(["report", file]);
+    rmSync(dir, { recursive: true, force: true });
+    expect(run.status).toBe(0);
+    expect(run.stderr).toContain(`warning: ${file}:3:`);
+    expect(run.stdout).toMatch(/<p class="description">Warnings \(judged as written\):<\/p><ul><li>[^<]*short\.yaml:3:\d+: training\.optimizer\.warmup-steps: warm-up \(100 steps\) is longer than the horizon/);
+  });
+});
+
