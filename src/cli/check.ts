@@ -80,7 +80,7 @@ export async function runCheck(path: string, flags: CheckFlags): Promise<void> {
     if (result === undefined) continue;
     texts.push(
       renderMarkdown
-        ? renderMarkdown(result, { variant, warnings: warned ?? [] })
+        ? renderMarkdown(result, { variant, warnings: warned ?? [], ...(flags.all ? { findings: Number.POSITIVE_INFINITY } : {}) })
         : flags.json
           ? renderCheckJson(result)
           : (variant ? `variant ${variant}\n\n` : "") +

@@ -240,3 +240,15 @@ describe("check --md carries the spec's warnings, as batch --md does", () => {
     expect(varied.stdout).toContain("\nWarnings (judged as written):\n\n- ");
   });
 });
+
+describe("check --md --all", () => {
+  it("lists every finding, where --md alone lists the worst 10 (README, Markdown for CI)", () => {
+    const some = runCli(["check", "--md", "specs/deep-sigmoid.yaml"]);
+    const all = runCli(["check", "--md", "--all", "specs/deep-sigmoid.yaml"]);
+    const json = JSON.parse(runCli(["check", "--json", "specs/deep-sigmoid.yaml"]).stdout) as { formats: { findings: unknown[] }[] };
+    const total = json.formats.reduce((n, f) => n + f.findings.length, 0);
+    expect(total).toBeGreaterThan(10);
+    expect(some.stdout).toContain(`Worst findings (10 of ${total}):`);
+    expect(all.stdout).toContain(`Worst findings (${total} of ${total}):`);
+  });
+});
