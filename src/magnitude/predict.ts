@@ -353,7 +353,8 @@ class Phase {
   /**
    * A weight gradient after accumulation and the cross-worker reduction: the accumulated micro-batch gradients
    * (each already divided by the accumulation steps A through the loss) add up incoherently, A·q; the workers'
-   * gradients add up the same way, W·q, and averaging divides by W (q/W²).
+   * gradients add up the same way, W·q, and averaging divides by W (q/W²). What is the same in every micro-batch
+   * (the curvature's aligned part) and what two of them share (their samples' common part) add up coherently.
    */
   weightGradient(layer: GraphLayer, prefix: string, wg: WeightGradientMoment, node: LedgerNode | null, outputQ: number): void {
     const weight = maybeWeight(layer, wg.weight);
@@ -362,9 +363,11 @@ class Phase {
     const A = training.accumulationSteps;
     const W = training.workers;
     const averaged = training.workerGradients === "average";
-    // micro-batch sums add incoherently, but the part that is the same in each of them (alignedQ) coherently
+    // micro-batch sums add incoherently, but the part that is the same in each of them (alignedQ) coherently, and
+    // two of them share what two samples of one share (betweenQ for each of the K(K − 1) ordered pairs; common practice)
     const aligned = wg.alignedQ ?? 0;
-    const summedQ = (wg.q - aligned) * A * W + aligned * A * A * W * W;
+    const K = A * W;
+    const summedQ = (wg.q - aligned) * K + aligned * K * K + (wg.betweenQ ?? 0) * K * (K - 1);
     const finalQ = averaged ? summedQ / (W * W) : summedQ;
     const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
     // an element of the combined gradient is zero only when it is zero in every micro-batch, taken as independent (exact
@@ -395,7 +398,7 @@ class Phase {
         source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
       },
     ];
-    if (finalQ !== undefined) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment (common practice)" });
+    if (finalQ !== undefined) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment, the parts they share coherently (common practice)" });
     return chain(node, layer.name, factors, true);
   }
 

@@ -200,6 +200,23 @@ export function correlatedSum(
 }
 
 /**
+ * E[S·S'] for the sums S, S' of two different micro-batches (or workers) of `batch` samples: every pair of their terms
+ * is a pair of two samples, of correlation ρ_sample at one position and ρ_cross at two, as within one batch (the samples
+ * are drawn alike and the weights are the same). A negative pair correlation is a batch norm's constraint that each
+ * batch's sum is zero, which does not reach across batches: none is counted then (Ioffe & Szegedy 2015, per-batch
+ * statistics).
+ */
+export function betweenBatches(batch: number, positions: number, q: number, sampleCorrelation: number, crossCorrelation = sampleCorrelation): number {
+  return batch * batch * positions * q * Math.max(sampleCorrelation + (positions - 1) * crossCorrelation, 0);
+}
+
+/** {@link betweenBatches} for a weight gradient's terms x·δ (or δ alone, as for a bias), paired as in {@link gradientSum}. */
+export function gradientBetween(batch: number, positions: number, delta: Gradient, input?: Signal): number {
+  if (input === undefined) return betweenBatches(batch, positions, delta.q, sampleCorrelationOf(delta), crossCorrelationOf(delta));
+  return betweenBatches(batch, positions, input.q * delta.q, sampleCorrelationOf(input) * sampleCorrelationOf(delta), crossCorrelationOf(input) * crossCorrelationOf(delta));
+}
+
+/**
  * E[(Σ_t x_t·δ_t)²] for a weight gradient summed over batch × positions: pairs of terms add E[x x']·E[δ δ'] (the
  * parts samples and positions share, input and gradient taken as independent: Schoenholz et al. 2017); with δ alone
  * (`input` omitted), the sum of the gradient itself, as for a bias.

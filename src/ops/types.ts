@@ -226,6 +226,11 @@ export interface WeightGradientMoment {
    * {@link Curvature}): micro-batches and workers add it coherently; absent: 0
    */
   alignedQ?: number;
+  /**
+   * E[S·S'] for the sums of two different micro-batches: the pairs of samples across them share what two samples of one
+   * batch share, so micro-batches and workers add it coherently as well; absent: 0
+   */
+  betweenQ?: number;
   /** terms summed per element (batch × positions) */
   terms: number;
   zeroFraction: number;

@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { NO_FACTORS, SOURCES, factor, fmt, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { NO_FACTORS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -90,6 +90,7 @@ export function linearBackward(
       weight: "weight",
       q: gradientSum(ctx.batch, positions, output, x) + aligned,
       alignedQ: aligned,
+      betweenQ: gradientBetween(ctx.batch, positions, output, x),
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
@@ -101,6 +102,7 @@ export function linearBackward(
     weightGradients.push({
       weight: "bias",
       q: gradientSum(ctx.batch, positions, output),
+      betweenQ: gradientBetween(ctx.batch, positions, output),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,

@@ -10,7 +10,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
-import { NO_FACTORS, correlatedSum, factor, fmt, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -126,12 +126,14 @@ export const normRule: AnalyticRule<NormStash> = {
     // micro-batch, of one sign for every feature (see Curvature)
     const curvature = output.curvature;
     const aligned = curvature === undefined ? 0 : terms * terms * stash.gainSquared * stash.normalisedSecond * stash.normalisedSecond * curvature.diagonalSquare;
+    const pairs = gainPairCorrelations(stash, output);
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
         // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
-        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...gainPairCorrelations(stash, output)) + aligned,
+        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned,
         alignedQ: aligned,
+        betweenQ: betweenBatches(ctx.batch, positions, stash.normalisedSecond * output.q, pairs[0]),
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
@@ -143,6 +145,7 @@ export const normRule: AnalyticRule<NormStash> = {
       weightGradients.push({
         weight: "bias",
         q: gradientSum(ctx.batch, positions, output),
+        betweenQ: gradientBetween(ctx.batch, positions, output),
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
