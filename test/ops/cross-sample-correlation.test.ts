@@ -10,7 +10,7 @@
  * correlation onto the input, for one position and for two alike), and the product's was E[φ]²·E[u u']: every
  * check here fails on those rules.
  */
-import { describe, expect, test } from "vitest";
+import { describe, expect, it, test } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import type { GraphLayer } from "../../src/graph/types.js";
 import { activationMoments } from "../../src/numeric/activations.js";
@@ -181,6 +181,26 @@ describe("gated feed-forward: pair correlations of the gradient, against its flo
       const diff = log2Ratio(gradients[wg.weight]!, wg.q);
       expect(Math.abs(diff), `${wg.weight}: ${diff.toFixed(2)} binades`).toBeLessThan(0.2);
     }
+  });
+});
+
+describe("gated feed-forward with an all-zero input (a zero-initialised layer below)", () => {
+  // the kernel stores φ(0)·(0·W_up) = 0 for every unit, whatever φ(0) is (sigmoid 1/2, softplus ln 2: the gates' second
+  // moment stays positive); the rule then carries a zero product with finite pair correlations, not 0/0 from the Stein part
+  it.each(["sigmoid", "softplus", "silu"] as const)("%s: the product is zero and its correlations finite", (activation) => {
+    const [B, P, D, H] = [2, 3, 4, 5];
+    const layer = layerOf(makeSpec([gated("fuse", H, activation), dense("out", 4)], { input: features(D, P), loss: mse() }), "fuse");
+    const random = createRandom(43);
+    const w: GatedWeights = { gate: normals(random, H * D, 1), up: normals(random, H * D, 1), down: normals(random, D * H, 1) };
+    const { saved, y } = gatedForward(new Float64Array(B * P * D), w, B * P, D, H, activation, 0);
+    expect(saved.hidden.every((v) => v === 0)).toBe(true);
+    expect(y.every((v) => v === 0)).toBe(true);
+    const zero: Signal = { q: 0, mean: 0, shared: 0, positionCorrelation: 0, zeroFraction: 1, shape: "gaussian", logVar: 0, gaussian: true };
+    const forward = gatedFeedForwardRule.forward(context(B), layer, zero, {});
+    expect(forward.stash.product.q).toBe(0);
+    expect(forward.stash.product.positionCorrelation ?? 0).toBe(0);
+    expect(forward.output.q).toBe(0);
+    expect(forward.output.positionCorrelation ?? 0).toBe(0);
   });
 });
 

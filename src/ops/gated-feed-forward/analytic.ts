@@ -98,7 +98,8 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
       logVar: input.logVar + (kappa.forward + 2) / spec.hidden,
       gaussian: false,
     };
-    if (m.second > 0) product.positionCorrelation = Math.min((positionCross.value * correlation) / m.second + stein / product.q, 1);
+    // an all-zero input (a zero-initialised layer below) leaves u = 0 and the product 0, with nothing shared: no stein share
+    if (m.second > 0) product.positionCorrelation = Math.min((positionCross.value * correlation) / m.second + (product.q > 0 ? stein / product.q : 0), 1);
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
     output.positionCorrelation = product.positionCorrelation ?? 0;
