@@ -22,7 +22,8 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     String(i + 1),
     o.plan.name + (o.fromSpec ? " (spec)" : ""),
     verdictText(o.verdict, style),
-    o.lossScale === null ? "none" : formatPowerOfTwo(Math.log2(o.lossScale)),
+    // worded as the batch table words it: "none" told both a plan that needs no scale and one no static scale fits
+    o.lossScale !== null ? formatPowerOfTwo(Math.log2(o.lossScale)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
     `${o.cost.bytesPerParameter} B`,
     `${o.cost.bytesPerActivation} B`,
     formatBytes(o.cost.parameterBytes + o.cost.activationBytes),
