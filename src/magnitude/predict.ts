@@ -262,6 +262,11 @@ class Phase {
       for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
       current = chain(current, layer.name, result.factors, this.build);
       signal = result.output;
+      // two features' covariance is carried through dense layers, activations, layer and RMS norms and dropout only
+      if (signal.featureCovariance !== undefined && !CARRIES_COVARIANCE.has(layer.family)) {
+        signal = { ...signal };
+        delete signal.featureCovariance;
+      }
       if (RESETS.has(layer.family) || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
       this.emit(
         this.build ? prefix + result.role : "",
@@ -434,6 +439,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
 }
 
+const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout"]);
 const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "flatten"]);
 
 /**

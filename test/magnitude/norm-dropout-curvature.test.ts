@@ -161,3 +161,37 @@ layers:
     }
   });
 });
+
+describe("two features of a random linear map's output share its inputs", () => {
+  it("the weights above a norm fed by a dense layer: E[x xᵀ] is not diagonal (0.61 and 0.45 binade low before)", () => {
+    // z = W·x gives Cov(z_i, z_j) = Σ_k W_ik·W_jk·var(x), of square var_w²·fan_in·var(x)² = q²/fan_in: the curvature's
+    // N·M·W·E[x xᵀ] holds the (width − 1) off-diagonal covariances of each row as well, here 1 + 95/64 times the diagonal
+    const squared = `name: dune-survey
+description: invented
+input: { features: 64 }
+training: { batch: 256, accumulation-steps: 4, loss: { kind: mean-squared-error } }
+${PLAN}layers:
+  - { type: dense, name: lower, width: 96 }
+  - { type: rms-norm, name: tidy }
+  - { type: dense, name: head, width: 16 }
+`;
+    const classes = `name: moth-wings
+description: invented
+input: { features: 64 }
+training: { batch: 512, accumulation-steps: 4, loss: { kind: cross-entropy, classes: 10 } }
+${PLAN}layers:
+  - { type: dense, name: lower, width: 96 }
+  - { type: tanh, name: squash }
+  - { type: layer-norm, name: tidy }
+  - { type: dense, name: head, width: 10 }
+`;
+    for (const [yaml, name] of [
+      [squared, "dune-survey"],
+      [classes, "moth-wings"],
+    ] as const) {
+      const d = measuredDifferences(yaml, name, /^head\/weight-gradient$/);
+      expect(d.size).toBe(1);
+      for (const [id, value] of d) expect(Math.abs(value), `${name} ${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
+    }
+  });
+});

@@ -40,6 +40,13 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
   // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
   if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
+  if (layer.family === "dense" && q > 0) {
+    // Cov(z_i, z_j) = Σ_kl W_ik·W_jl·Cov(x_k, x_l) with independent weights: E[·²] = var_w²·Σ_kl Cov_kl², a row of Cov
+    // holding var(x)² on its diagonal and (fan_in − 1) covariances off it (derived)
+    const varianceX = Math.max(input.q - sharedOf(input), 0);
+    const row = varianceX * varianceX + (w.fanIn - 1) * (input.featureCovariance ?? 0) * input.q * input.q;
+    output.featureCovariance = (variance * variance * w.fanIn * row) / (q * q);
+  }
   const ratio = input.q > 0 ? q / input.q : 0;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
   return {
@@ -84,7 +91,8 @@ export function linearBackward(
   // the loss's curvature through these weights: N·M·W·E[x xᵀ] in every micro-batch (see Curvature), E[x xᵀ] taken as
   // E[x²]·I (what the samples share of x is in gradientSum's pairs)
   // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
-  const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * variance * curvature.rowSquares;
+  // E[x xᵀ]'s row: E[x²]² on the diagonal and the covariances of the (fan_in − 1) other features off it (featureCovariance)
+  const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * (1 + (inWidth - 1) * (x.featureCovariance ?? 0)) * variance * curvature.rowSquares;
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",

@@ -20,6 +20,8 @@ export const dropoutRule: AnalyticRule<null> = {
     // two elements keep their product in expectation (independent masks: E[m·m']/keep² = 1) while q grows by 1/keep,
     // so a correlation given relative to q shrinks by keep (the absolute `shared` and `mean` stay as they are)
     if (input.positionCorrelation !== undefined) output.positionCorrelation = input.positionCorrelation * keep;
+    // two features' covariance likewise (independent masks), relative to q²: keep²
+    if (input.featureCovariance !== undefined) output.featureCovariance = input.featureCovariance * keep * keep;
     return {
       output,
       factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,

@@ -84,6 +84,10 @@ export const normRule: AnalyticRule<NormStash> = {
           gaussian: input.gaussian,
         };
     if (!centred && input.bound !== undefined) output.bound = input.bound * Math.sqrt(gainSquared / denominator);
+    // every feature of a position is divided by (nearly) the same statistic: covariances scale by gain²/(var + ε)
+    if (layer.family !== "batch-norm" && input.featureCovariance !== undefined && q > 0) {
+      output.featureCovariance = ((gainSquared / denominator) ** 2 * input.featureCovariance * input.q * input.q) / (q * q);
+    }
     // each position is divided by (nearly) the same statistic, so the part two positions share scales like q, less
     // what the centring removes: each sample's feature mean (layer norm) or each feature's batch mean (batch norm)
     const normalisedPositionShared = Math.max(positionCorrelationOf(input) * input.q - removed, 0) / denominator;
