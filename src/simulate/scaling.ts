@@ -113,13 +113,8 @@ export function roundScaledInPlace(format: Format, data: Float64Array, scales: S
     roundArrayInPlace(format, data, clamp);
     return;
   }
-  // the few clamped blocks keep the plan's overflow mode: round them apart, before the rest is rounded in place
-  for (let b = 0; b < scales.clamped.length; b++) {
-    if (scales.clamped[b] === 1) roundArrayInPlace(format, blockOf(data, b), options);
-  }
-  for (let b = 0; b < scales.clamped.length; b++) {
-    if (scales.clamped[b] === 0) roundArrayInPlace(format, blockOf(data, b), clamp);
-  }
+  // the few clamped blocks keep the plan's overflow mode (blocks are disjoint: the order does not matter)
+  for (let b = 0; b < scales.clamped.length; b++) roundArrayInPlace(format, blockOf(data, b), scales.clamped[b] === 1 ? options : clamp);
 }
 
 /** What storing elements already multiplied by their `scales` does, counted as {@link roundScaledInPlace} rounds them. */
