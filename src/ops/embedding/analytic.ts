@@ -18,9 +18,12 @@ export const embeddingRule: AnalyticRule<null> = {
     const table = weightOf(layer, "table");
     const q = ctx.variance(table) * spec.multiplier * spec.multiplier;
     const zero = table.distribution === "zeros";
+    // two lookups read the same row with probability 1/V (uniform token use, as below), else independent rows:
+    // E[x_n·x_m] = q/V for two samples or two positions (derived)
     const output: Signal = {
       q,
-      shared: 0,
+      shared: q / spec.vocabulary,
+      positionCorrelation: 1 / spec.vocabulary,
       mean: 0,
       zeroFraction: zero ? 1 : 0,
       shape: table.distribution === "uniform" ? "uniform" : "gaussian",
@@ -41,14 +44,19 @@ export const embeddingRule: AnalyticRule<null> = {
     const lookups = ctx.batch * (layer.input.layout === "tokens" ? layer.input.positions : 1);
     const lambda = lookups / spec.vocabulary;
     const m2 = spec.multiplier * spec.multiplier;
+    const curvature = output.curvature;
+    const aligned = curvature === undefined ? 0 : lambda * lambda * m2 * curvature.rowSquares * ctx.variance(weightOf(layer, "table")) * m2;
     return {
       factors: [],
       inner: [],
       weightGradients: [
         {
           weight: "table",
-          // over all V·width elements: Σ_rows count_r·E[δ²]·m² / V = λ·m²·E[δ²]
-          q: lambda * m2 * output.q,
+          // over all V·width elements: Σ_rows count_r·E[δ²]·m² / V = λ·m²·E[δ²]; at the start the c(c − 1) pairs of one
+          // row's lookups share M·x_r, the loss's curvature through the row itself: E[c(c − 1)] = λ², E[(M·x)_i²] =
+          // Σ_j M_ij²·E[x²] (derived, as Curvature), the same in every micro-batch
+          q: lambda * m2 * output.q + aligned,
+          alignedQ: aligned,
           // coherent: a touched row's lookups all aligned, E[count²] = λ + λ² per row
           coherentQ: (lambda + lambda * lambda) * m2 * output.q,
           terms: lookups,
