@@ -17,7 +17,7 @@ import { activationMoments } from "../../src/numeric/activations.js";
 import { createRandom, type RandomSource } from "../../src/numeric/random.js";
 import { attentionRule } from "../../src/ops/attention/analytic.js";
 import { attentionBackward, attentionForward, type AttentionWeights } from "../../src/ops/attention/kernel.js";
-import { crossCorrelationOf, positionCorrelationOf, sampleCorrelationOf } from "../../src/ops/common.js";
+import { crossCorrelationOf, positionCorrelationOf, sampleCorrelationOf, textOf } from "../../src/ops/common.js";
 import { gatedFeedForwardRule } from "../../src/ops/gated-feed-forward/analytic.js";
 import { gatedBackward, gatedForward, type GatedWeights } from "../../src/ops/gated-feed-forward/kernel.js";
 import type { Gradient, OpContext, Signal } from "../../src/ops/types.js";
@@ -284,6 +284,27 @@ describe("attention: pair correlations of the gradient, against its float64 kern
       // the logits' gradient p_ij·δo_i·(v_j − v̄_i) keeps the same 1 − 1/n of each row (within 0.04 binade here)
       const logits = log2Ratio(logitQ, inner("logits")) / 2;
       expect(Math.abs(logits), `logits gradient rms: ${logits.toFixed(2)} binades`).toBeLessThan(0.15);
+    });
+  }
+});
+
+describe("attention's ledger: the softmax Jacobian's line multiplies out to its factor", () => {
+  // the numbers a ledger line shows after "=" are the factors of its ratio (each to 4 significant digits, fmt), so
+  // their product is the ratio within 4 roundings of 5e-4 relative: arithmetic, full and under a causal mask (whose
+  // masked logits pass a zero gradient: the unmasked share (P + 1)/(2P) of the elements)
+  for (const causal of [false, true]) {
+    it(causal ? "causal" : "full", () => {
+      const spec = makeSpec([attention("mix", 2, 8, { causal }), dense("out", 4)], { input: features(16, 12), loss: mse() });
+      const layer = layerOf(spec, "mix");
+      const ctx: OpContext = { ...context(4), ledger: true };
+      const input: Signal = { q: 1, mean: 0, shared: 0, positionCorrelation: 0.2, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
+      const forward = attentionRule.forward(ctx, layer, input, {});
+      const backward = attentionRule.backward(ctx, layer, forward.stash, { q: 1, zeroFraction: 0, shape: "gaussian", logVar: 0 }, {});
+      const line = backward.inner.find((g) => g.suffix === "logits")!.factors.find((f) => textOf(f.rule).startsWith("softmax Jacobian"))!;
+      const shown = textOf(line.rule).split(" = ")[1]!.split("·").map(Number);
+      expect(shown).toHaveLength(causal ? 3 : 2);
+      const product = shown.reduce((a, b) => a * b, 1);
+      expect(Math.abs(product / line.ratio - 1), textOf(line.rule)).toBeLessThan(2e-3);
     });
   }
 });

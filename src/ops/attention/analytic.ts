@@ -452,7 +452,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       const probFactor = factor(d * stash.value.q, () => `attention: d·E[v²] = ${d}·${fmt(stash.value.q)}`, SOURCE);
       const logitFactor = factor(
         centredElement * unmaskedShare * valueApart,
-        () => `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v) = ${fmt(centredElement)}·${fmt(valueApart)}`,
+        // under a causal mask E[p²] is per unmasked element, and the masked share of the logits' gradient is zero
+        () =>
+          spec.causal
+            ? `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v)·(unmasked share) = ${fmt(centredElement)}·${fmt(valueApart)}·${fmt(unmaskedShare)}`
+            : `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v) = ${fmt(centredElement)}·${fmt(valueApart)}`,
         valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
       );
       const queryFactor = factor(
