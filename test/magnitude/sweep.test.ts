@@ -1,0 +1,213 @@
+import { describe, expect, it } from "vitest";
+import { predict } from "../../src/magnitude/index.js";
+import { simulate } from "../../src/simulate/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+
+// A sweep of small invented networks over families and settings the examples leave out (strided and valid
+// convolutions, pools, batch norm after convolutions, dropout, embeddings, smooth activations, residual blocks with a
+// multiplier and pre/post norms, positions, accumulation and workers, sum reduction), each checked against the
+// project's float64 simulation (src/simulate: the network run forward and backward on random data, median of 5 draws).
+// Every tensor must agree within 0.4 binade but those listed in KNOWN, which are held to their own tolerance (the
+// difference measured when listed, plus 0.3) with their diagnosis. The rules that brought the others within 0.4 are
+// tested on their own in loss-curvature, norm-dropout-curvature, micro-batch-correlation and embedding-repeats.
+
+const PLAN = `precision:
+  activations: binary32
+  weights: binary32
+  gradients: binary32
+`;
+
+const SPECS: Record<string, string> = {
+  "s1-conv-stride": `name: s1-conv-stride
+description: invented lichen-photo sorter, strided valid convolutions and average pool
+input: { channels: 3, height: 16, width: 16, scale: 0.7 }
+training: { batch: 64, loss: { kind: cross-entropy, classes: 6 } }
+${PLAN}layers:
+  - { type: conv2d, name: c1, channels: 16, kernel: 3, stride: 2, padding: valid, init: he-normal }
+  - { type: relu, name: a1 }
+  - { type: conv2d, name: c2, channels: 24, kernel: 3, padding: valid, init: he-normal }
+  - { type: relu, name: a2 }
+  - { type: average-pool, name: p1, size: 2 }
+  - flatten
+  - { type: dense, name: head, width: 6 }
+`,
+  "s2-conv-bn-maxpool": `name: s2-conv-bn-maxpool
+description: invented tide-pool camera, conv + batch-norm + leaky-relu + max pool with overlap
+input: { channels: 2, height: 12, width: 12 }
+training: { batch: 32, loss: { kind: cross-entropy, classes: 5 } }
+${PLAN}layers:
+  - { type: conv2d, name: c1, channels: 16, kernel: 3, bias: false }
+  - { type: batch-norm, name: bn1 }
+  - { type: leaky-relu, name: a1, slope: 0.1 }
+  - { type: max-pool, name: p1, size: 3, stride: 2 }
+  - { type: conv2d, name: c2, channels: 16, kernel: 3, padding: 1 }
+  - { type: batch-norm, name: bn2, gain: 0.5 }
+  - { type: relu, name: a2 }
+  - { type: average-pool, name: p2, size: 5 }
+  - flatten
+  - { type: dropout, name: drop, rate: 0.3 }
+  - { type: dense, name: head, width: 5 }
+`,
+  "s3-embed-head": `name: s3-embed-head
+description: invented bird-call token tagger, embeddings into a dense head per position
+input: { tokens: 16 }
+training: { batch: 32, loss: { kind: cross-entropy, classes: 20 } }
+${PLAN}layers:
+  - { type: embedding, name: emb, vocabulary: 500, width: 64, init: 0.1, multiplier: 8 }
+  - { type: layer-norm, name: ln }
+  - { type: dense, name: up, width: 128 }
+  - { type: gelu, name: act }
+  - { type: dense, name: head, width: 20 }
+`,
+  "s4-smooth-mlp": `name: s4-smooth-mlp
+description: invented greenhouse humidity regressor with smooth activations
+input: { features: 48, scale: 2 }
+training: { batch: 256, loss: { kind: mean-squared-error, reduction: sum, target-scale: 0.5 } }
+${PLAN}layers:
+  - { type: dense, name: d1, width: 96 }
+  - { type: gelu, name: a1 }
+  - { type: dense, name: d2, width: 96 }
+  - { type: silu, name: a2 }
+  - { type: dense, name: d3, width: 96, init: glorot-normal }
+  - { type: tanh, name: a3 }
+  - { type: dense, name: d4, width: 96 }
+  - { type: sigmoid, name: a4 }
+  - { type: dense, name: d5, width: 96, init: he-normal }
+  - { type: softplus, name: a5 }
+  - { type: dense, name: out, width: 8 }
+`,
+  "s5-residual-prenorm": `name: s5-residual-prenorm
+description: invented river-gauge forecaster, pre-norm residual blocks with a branch multiplier, rms-norm
+input: { features: 64, positions: 8 }
+training: { batch: 16, loss: { kind: mean-squared-error } }
+${PLAN}blocks:
+  blk:
+    - type: residual
+      multiplier: 0.5
+      branch:
+        - { type: rms-norm }
+        - { type: dense, width: 64 }
+        - silu
+        - { type: dense, width: 64 }
+layers:
+  - { type: dense, name: inp, width: 64 }
+  - { type: repeat, times: 4, layers: [ { type: use, block: blk } ] }
+  - { type: rms-norm, name: final }
+  - { type: dense, name: head, width: 4 }
+`,
+  "s6-residual-postnorm": `name: s6-residual-postnorm
+description: invented seed-germination scorer, post-norm residual blocks with layer-norm
+input: { features: 32 }
+training: { batch: 128, accumulation-steps: 2, workers: 2, worker-gradients: sum, loss: { kind: cross-entropy, classes: 4, reduction: sum } }
+${PLAN}blocks:
+  blk:
+    - type: residual
+      multiplier: 2
+      branch:
+        - { type: dense, width: 32, init: he-normal }
+        - { type: leaky-relu, slope: 0.2 }
+        - { type: dropout, rate: 0.1 }
+        - { type: dense, width: 32 }
+    - layer-norm
+layers:
+  - { type: dense, name: inp, width: 32 }
+  - { type: repeat, times: 3, layers: [ { type: use, block: blk } ] }
+  - { type: dense, name: head, width: 4 }
+`,
+  "s7-positions-mlp": `name: s7-positions-mlp
+description: invented loom-sensor sequence, per-position tanh/sigmoid MLP with dropout, mean loss
+input: { features: 24, positions: 32, scale: 0.3 }
+training: { batch: 16, accumulation-steps: 4, loss: { kind: mean-squared-error, target-scale: 2 } }
+${PLAN}layers:
+  - { type: dense, name: d1, width: 48, init: glorot-uniform }
+  - { type: tanh, name: a1 }
+  - { type: dropout, name: dr, rate: 0.5 }
+  - { type: dense, name: d2, width: 48 }
+  - { type: sigmoid, name: a2 }
+  - { type: layer-norm, name: ln }
+  - { type: dense, name: out, width: 12 }
+`,
+  "s8-embed-rms": `name: s8-embed-rms
+description: invented recipe-step tokens, embedding into rms-norm and softplus head, sum reduction
+input: { tokens: 8 }
+training: { batch: 64, loss: { kind: cross-entropy, classes: 16, reduction: sum } }
+${PLAN}layers:
+  - { type: embedding, name: emb, vocabulary: 200, width: 48 }
+  - { type: rms-norm, name: rn, gain: 2 }
+  - { type: dense, name: d1, width: 96, init: he-uniform }
+  - { type: softplus, name: a1 }
+  - { type: dense, name: head, width: 16, bias: false }
+`,
+};
+
+interface Known {
+  spec: string;
+  /** the tensor ids it covers */
+  pattern: RegExp;
+  /** the largest |difference| allowed, in binades; "zero": both rms below 1e-8 instead */
+  binades: number | "zero";
+  diagnosis: string;
+}
+
+const KNOWN: Known[] = [
+  {
+    spec: "s2-conv-bn-maxpool",
+    pattern: /^c2\/weight-gradient:bias$/,
+    binades: "zero",
+    diagnosis:
+      "a bias right before a batch norm has no gradient (the norm removes each channel's batch mean): measured 3.6e-17 (float64 roundoff), predicted 3.5e-10 (the sum of a gradient forced to zero per channel, left by the rule's approximate anti-correlation); both are zero for any stored format",
+  },
+  {
+    spec: "s2-conv-bn-maxpool",
+    pattern: /^(bn1\/weight-gradient:(bias|gain)|(p1|c2|c1|a1|bn1)\/activation-gradient|c1\/weight-gradient|head\/weight-gradient:bias)$/,
+    binades: 2.15,
+    diagnosis:
+      "a max-pool between two batch-normed convolutions on a 12 × 12 image: bn1's bias gradient +1.85, its gain −1.32, the gradients from p1 down to c1 −0.5 to −1.0 binade; with an average pool instead all are within 0.45, at 40 × 40 still +1.65 / −1.09. Not resolved: the padded 5 × 5 map after the pool gives border pixels their own batch mean, which the second batch norm does not remove (the rule takes the per-channel mean as removed whole), and the arg-max routing sums a channel's gradient over the pooled pixels that the zero-sum below it no longer cancels",
+  },
+  {
+    spec: "s5-residual-prenorm",
+    pattern: /^(repeat-1\.\d\.use-0\.residual-0\.(rms-norm-0\/weight-gradient:gain|dense-[13]\/weight-gradient(:bias)?)|inp\/weight-gradient)$/,
+    binades: 1.05,
+    diagnosis:
+      "residual blocks under the loss's curvature: the branch's weights are 0.5–0.7 binade low, as the branch seed δ_F = α·δ_out holds α·M·x of the skip, which the branch's own input correlates with (E[x·hᵀ] = q_x·E[∂h/∂x]ᵀ, Stein's lemma), a part the rules do not carry; and the skip path drops the curvature (the residual's input matrix M + α(M·J̄ + J̄ᵀ·M) + the branch's pullback needs the branch's mean Jacobian), so the weights below are 0.45 low",
+  },
+  {
+    spec: "s6-residual-postnorm",
+    pattern: /^(repeat-1\.\d\.use-0\.(residual-0\.(dense-[03]\/weight-gradient(:bias)?|leaky-relu-1\/activation-gradient|dropout-2\/activation-gradient|dense-0\/activation-gradient)|layer-norm-1\/weight-gradient:(gain|bias))|inp\/weight-gradient(:bias)?|head\/weight-gradient(:bias)?)$/,
+    binades: 1.15,
+    diagnosis:
+      "post-norm residual blocks with multiplier 2 under the loss's curvature: as s5-residual-prenorm, the skip's part of the branch seed and the curvature along the skip are not carried (the weight gradients 0.5–0.85 low); the same spec with one block and multiplier 1 is within 0.3",
+  },
+  {
+    spec: "s8-embed-rms",
+    pattern: /^(rn\/weight-gradient:gain|d1\/weight-gradient|emb\/weight-gradient:table)$/,
+    binades: 0.8,
+    diagnosis:
+      "200 tokens, 512 lookups: two lookups of one row share x exactly, so their products x·δ share more than E[x x']·E[δ δ'] (δ holds M·x through the curvature); the norm's gain gradient is 0.48 low",
+  },
+];
+
+function differences(name: string): { id: string; difference: number; measured: number; predicted: number }[] {
+  const parsed = parseSpec(SPECS[name]!, `${name}.yaml`);
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  const { comparison } = simulate(parsed.spec, { draws: 5, seed: 1, round: false, predict });
+  return comparison!.rows.map((r) => ({ id: r.id, difference: r.differenceBinades, measured: r.measured.median.rms, predicted: r.predictedRms }));
+}
+
+describe("sweep of invented networks against the float64 simulation", () => {
+  for (const name of Object.keys(SPECS)) {
+    it(`${name}: every tensor within 0.4 binade, or within its known case`, () => {
+      const rows = differences(name);
+      expect(rows.length).toBeGreaterThan(10);
+      const failures: string[] = [];
+      for (const { id, difference, measured, predicted } of rows) {
+        const known = KNOWN.find((k) => k.spec === name && k.pattern.test(id));
+        const allowed = known === undefined ? 0.4 : known.binades;
+        if (allowed === "zero") {
+          if (!(measured < 1e-8 && predicted < 1e-8)) failures.push(`${id}: measured ${measured}, predicted ${predicted} (both should be ~0)`);
+        } else if (!(Math.abs(difference) <= allowed)) failures.push(`${id}: ${difference.toFixed(2)} binades (allowed ${allowed})`);
+      }
+      expect(failures).toEqual([]);
+    });
+  }
+});
