@@ -240,7 +240,9 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
  * micro-batch (see Curvature in ../types.ts): N²·E[x²]²·var_w·(row squares of the curvature the weights see). The down
  * projection sees M; the product's curvature is M_h = W_downᵀ·M·W_down; up sees diag(φ(g))·M_h·diag(φ(g)) (E[φ(g)²] on
  * its diagonal, E[φ(g)]² off it: independent units), gate diag(φ'(g)·u)·M_h·diag(φ'(g)·u) (E[φ'²]·E[u²] on the
- * diagonal, nothing off it: u has mean zero) (own algebra, as the activation's pull-back)
+ * diagonal; off it only the unit's own mean E[φ'(g)·u] = E[φ''(g)]·Cov(g, u), Stein's lemma as in the forward rule: of
+ * random sign over units and of square O(1/D) against the diagonal's, so left out) (own algebra, as the activation's
+ * pull-back)
  */
 function alignedParts(stash: GatedStash, output: Gradient, N: number, D: number, hidden: number, wg: number, wu: number, wd: number): { gate: number; up: number; down: number } {
   const m = output.curvature;
