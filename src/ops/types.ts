@@ -126,6 +126,11 @@ export interface Curvature {
   rowSquares: number;
   /** M·1 = 0, every row summing to zero (a layer norm's centring): M holds nothing of a mean its input shares over features */
   centred?: boolean;
+  /**
+   * set once a norm's response (M − ρ·(tr M/n)·I, not a Gauss–Newton matrix) lies between this tensor and the loss: M
+   * may then have negative eigenvalues, and a positive semidefinite matrix's bounds do not hold for it
+   */
+  indefinite?: boolean;
 }
 
 

@@ -330,6 +330,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     const off = stash.derivativeMean * stash.derivativeMean;
     const diagonalSquare = d2 * d2 * curvature.diagonalSquare;
     gradient.curvature = { diagonal: d2 * curvature.diagonal, diagonalSquare, rowSquares: diagonalSquare + off * off * Math.max(curvature.rowSquares - curvature.diagonalSquare, 0) };
+    if (curvature.indefinite === true) gradient.curvature.indefinite = true;
     // the gradient holds M_ii·φ(u_i) of its own unit, which φ'(u_i) does not gate independently: its square is
     // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and its mean over the data, E[φ'φ]·M_ii, is the same for every
     // sample (a shared part the bias gradient sums coherently)

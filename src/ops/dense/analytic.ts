@@ -152,10 +152,13 @@ export function densePullback(m: Curvature, v: number, outWidth: number, inWidth
   const frobenius = outWidth * m.rowSquares;
   const diagonalSquare = v * v * (traceSquare + 2 * frobenius);
   const diagonal = v * trace;
-  // M' is positive semidefinite (a Gauss–Newton matrix), so M'_ij² ≤ M'_ii·M'_jj (Cauchy–Schwarz): a row's squares are
-  // at most E[M'_ii·tr M'], which the independent-entries count above overshoots through many narrow layers
-  const rowSquares = Math.min(diagonalSquare + (inWidth - 1) * v * v * frobenius, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
-  return { diagonal, diagonalSquare, rowSquares };
+  // a Gauss–Newton M' is positive semidefinite, so M'_ij² ≤ M'_ii·M'_jj (Cauchy–Schwarz): a row's squares are at most
+  // E[M'_ii·tr M'], which the independent-entries count overshoots through many narrow layers
+  const counted = diagonalSquare + (inWidth - 1) * v * v * frobenius;
+  const rowSquares = m.indefinite === true ? counted : Math.min(counted, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
+  const pulled: Curvature = { diagonal, diagonalSquare, rowSquares };
+  if (m.indefinite === true) pulled.indefinite = true;
+  return pulled;
 }
 
 const SELF_RULE = "the loss's curvature: the gradient holds this layer's own input, Wᵀ·M·W·x";

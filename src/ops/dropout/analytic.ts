@@ -45,6 +45,7 @@ export const dropoutRule: AnalyticRule<null> = {
     if (m !== undefined) {
       const diagonalSquare = ratio * ratio * m.diagonalSquare;
       input.curvature = { diagonal: ratio * m.diagonal, diagonalSquare, rowSquares: Math.max(m.rowSquares - m.diagonalSquare, 0) + diagonalSquare };
+      if (m.indefinite === true) input.curvature.indefinite = true;
     }
     return { input, factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS, inner: [], weightGradients: [] };
   },

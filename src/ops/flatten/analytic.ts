@@ -23,6 +23,7 @@ export const flattenRule: AnalyticRule<null> = {
       const all = D * positionCount(layer.input);
       const off = all > 1 ? (Math.max(curvature.rowSquares - curvature.diagonalSquare, 0) * (D - 1)) / (all - 1) : 0;
       input.curvature = { diagonal: curvature.diagonal, diagonalSquare: curvature.diagonalSquare, rowSquares: curvature.diagonalSquare + off };
+      if (curvature.indefinite === true) input.curvature.indefinite = true;
     }
     return { input, factors: [], inner: [], weightGradients: [] };
   },

@@ -202,5 +202,6 @@ export function normPullback(m: Curvature, ratio: number, rho: number): Curvatur
     diagonal: ratio * (1 - rho) * m.diagonal,
     diagonalSquare,
     rowSquares: ratio * ratio * Math.max(m.rowSquares - m.diagonalSquare, 0) + diagonalSquare,
+    indefinite: true,
   };
 }
