@@ -1,10 +1,8 @@
 import { describe, expect, it } from "vitest";
+import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
 import { lossSeed } from "../../src/magnitude/loss.js";
-import { predict } from "../../src/magnitude/index.js";
 import { createRandom } from "../../src/numeric/index.js";
 import { densePullback } from "../../src/ops/dense/analytic.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
 
 // At the start of training the labels are independent of the inputs, and the loss gradient at a layer's output holds
 // the layer's own output through the loss's curvature M (δ = M·y + what does not depend on the layer). A weight
@@ -13,18 +11,6 @@ import { parseSpec } from "../../src/spec/index.js";
 // against the project's float64 simulation (src/simulate: the described network run forward and backward on random
 // data, median of 5 draws); the figures in the comments are the differences before the rule.
 
-function measuredDifferences(yaml: string, name: string, pattern: RegExp): Map<string, number> {
-  const parsed = parseSpec(yaml, `${name}.yaml`);
-  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-  const { comparison } = simulate(parsed.spec, { draws: 5, seed: 1, round: false, predict });
-  return new Map(comparison!.rows.filter((r) => pattern.test(r.id)).map((r) => [r.id, r.differenceBinades]));
-}
-
-const PLAN = `precision:
-  activations: binary32
-  weights: binary32
-  gradients: binary32
-`;
 
 describe("the loss's curvature through a layer's own weights", () => {
   it("a one-layer regressor's weight gradient (0.81 binade low before)", () => {
@@ -34,7 +20,7 @@ describe("the loss's curvature through a layer's own weights", () => {
 description: invented
 input: { features: 256 }
 training: { batch: 1024, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: probe, width: 16, bias: true }
 `;
     const d = measuredDifferences(yaml, "kiln-probe", /^probe\/weight-gradient/);
@@ -48,7 +34,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 256 }
 training: { batch: 1024, accumulation-steps: 4, workers: 2, worker-gradients: average, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: probe, width: 16, bias: true }
 `;
     const d = measuredDifferences(yaml, "kiln-probe", /^probe\/weight-gradient$/);
@@ -62,7 +48,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 128 }
 training: { batch: 2048, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: hidden, width: 64, bias: true }
   - { type: relu, name: gate }
   - { type: dense, name: head, width: 64, bias: true }
@@ -86,7 +72,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 32, positions: 4 }
 training: { batch: 1024, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: rowwise, width: 32 }
   - relu
   - flatten
@@ -104,7 +90,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 64 }
 training: { batch: 2048, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: gated-feed-forward, name: ff, hidden: 128, activation: relu }
   - { type: dense, name: head, width: 64 }
 `;
@@ -120,7 +106,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 96 }
 training: { batch: 1024, loss: { kind: cross-entropy, classes: 12 } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: second, width: 64, bias: true }
   - { type: relu, name: gate }
   - { type: layer-norm, name: tidy }
@@ -146,7 +132,7 @@ describe("the curvature through many layers", () => {
 description: invented
 input: { features: 12 }
 training: { batch: 32, loss: { kind: mean-squared-error, target-scale: 0.01 } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - type: repeat
     name: stack
     times: 80

@@ -1,9 +1,7 @@
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
+import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
 import { createRandom } from "../../src/numeric/index.js";
 import { normPullback } from "../../src/ops/norm/analytic.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
 
 // The loss's curvature at the start (see loss-curvature.test.ts) used to stop at a norm or a dropout layer, so the
 // weights below them lost the part of their gradient that is the same in every micro-batch: up to 1.6 binades low with
@@ -12,18 +10,6 @@ import { parseSpec } from "../../src/spec/index.js";
 // diag(M). Each check is against the project's float64 simulation (src/simulate: the described network run forward
 // and backward on random data, median of 5 draws); the figures in the comments are the differences before the rule.
 
-function measuredDifferences(yaml: string, name: string, pattern: RegExp): Map<string, number> {
-  const parsed = parseSpec(yaml, `${name}.yaml`);
-  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-  const { comparison } = simulate(parsed.spec, { draws: 5, seed: 1, round: false, predict });
-  return new Map(comparison!.rows.filter((r) => pattern.test(r.id)).map((r) => [r.id, r.differenceBinades]));
-}
-
-const PLAN = `precision:
-  activations: binary32
-  weights: binary32
-  gradients: binary32
-`;
 
 describe("the loss's curvature through norms and dropout", () => {
   it("through an RMS norm: the weights below it (1.57 binades low before)", () => {
@@ -32,7 +18,7 @@ describe("the loss's curvature through norms and dropout", () => {
 description: invented
 input: { features: 64 }
 training: { batch: 256, accumulation-steps: 4, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: rms-norm, name: tidy }
   - { type: dense, name: head, width: 16 }
@@ -49,7 +35,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 64 }
 training: { batch: 256, accumulation-steps: 4, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: sigmoid, name: squash }
   - { type: layer-norm, name: tidy }
@@ -66,7 +52,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 64 }
 training: { batch: 512, accumulation-steps: 4, loss: { kind: cross-entropy, classes: 10 } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: tanh, name: squash }
   - { type: layer-norm, name: tidy }
@@ -83,7 +69,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 64 }
 training: { batch: 256, accumulation-steps: 4, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: relu, name: gate }
   - { type: dropout, name: drop, rate: 0.5 }
@@ -137,7 +123,7 @@ describe("a residual branch's seed", () => {
 description: invented
 input: { features: 64, positions: 8 }
 training: { batch: 16, loss: { kind: mean-squared-error } }
-${PLAN}blocks:
+${WIDE_PLAN}blocks:
   blk:
     - type: residual
       multiplier: 0.5
@@ -170,7 +156,7 @@ describe("two features of a random linear map's output share its inputs", () => 
 description: invented
 input: { features: 64 }
 training: { batch: 256, accumulation-steps: 4, loss: { kind: mean-squared-error } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: rms-norm, name: tidy }
   - { type: dense, name: head, width: 16 }
@@ -179,7 +165,7 @@ ${PLAN}layers:
 description: invented
 input: { features: 64 }
 training: { batch: 512, accumulation-steps: 4, loss: { kind: cross-entropy, classes: 10 } }
-${PLAN}layers:
+${WIDE_PLAN}layers:
   - { type: dense, name: lower, width: 96 }
   - { type: tanh, name: squash }
   - { type: layer-norm, name: tidy }

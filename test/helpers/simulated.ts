@@ -1,0 +1,25 @@
+/**
+ * Prediction against the project's float64 simulation (src/simulate: the described network run forward and backward on
+ * random data), for the tests that hold a magnitude rule to it.
+ */
+import { predict } from "../../src/magnitude/index.js";
+import { simulate } from "../../src/simulate/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+
+/** A plan that stores every tensor in binary32, so that what a test compares is the magnitude model alone. */
+export const WIDE_PLAN = `precision:
+  activations: binary32
+  weights: binary32
+  gradients: binary32
+`;
+
+/**
+ * log2(measured rms / predicted rms) of each tensor whose id matches `pattern`, the measurement the median of `draws`
+ * draws (seeds 1 …), unrounded.
+ */
+export function measuredDifferences(yaml: string, name: string, pattern: RegExp, draws = 5): Map<string, number> {
+  const parsed = parseSpec(yaml, `${name}.yaml`);
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  const { comparison } = simulate(parsed.spec, { draws, seed: 1, round: false, predict });
+  return new Map(comparison!.rows.filter((r) => pattern.test(r.id)).map((r) => [r.id, r.differenceBinades]));
+}
