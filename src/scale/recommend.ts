@@ -589,8 +589,8 @@ function describe(
     const everywhere = window.lowestLog2 === options.lowestLog2 && window.highestLog2 === options.highestLog2;
     out.push(
       everywhere
-        ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within bounds.`
-        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within bounds, 1 among them; ${weighing !== undefined && weighing.centreLog2 !== window.pickLog2 ? `the pick is ${pow(window.pickLog2!)}` : `${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides`}.`,
+        ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within the window's whole-model bounds.`
+        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within the window's whole-model bounds, 1 among them; ${weighing !== undefined && weighing.centreLog2 !== window.pickLog2 ? `the pick is ${pow(window.pickLog2!)}` : `${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides`}.`,
     );
   } else {
     out.push(
