@@ -82,6 +82,8 @@ class Draft {
   /** the 8-bit scale factor the value is stored with: 0 none, 1 per tensor (2^scaleLog2), 2 its own block's */
   scaled = 0;
   scaleLog2 = Number.NaN;
+  /** the conversion saturates (clips to the largest finite value) instead of overflowing, as the plan says */
+  saturates = false;
   /** the tensor contributing most to a network-wide count, and its share of it ("" and NaN for none) */
   top = "";
   topValue = Number.NaN;
@@ -170,6 +172,7 @@ function fill(
   draft.notWidened = notWidened;
   draft.scaled = 0;
   draft.scaleLog2 = Number.NaN;
+  draft.saturates = false;
   draft.top = "";
   draft.topValue = Number.NaN;
   draft.topLayer = "";
@@ -368,7 +371,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
             : "";
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`}${factors.length > 0 ? ` (${factors.join(", ")})` : ""} ` +
-        `overflows ${format}${scaled} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
+        `${draft.saturates ? "saturates in" : "overflows"} ${format}${scaled} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
         `(predicted ${predicted}); probability ${probabilityWords(value)} per step${side}` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
@@ -539,8 +542,9 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
     putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", value, level / factor,
       atRisk, t.overflowFails, k === 0, LOSS_VALUE, input.rms, k === 0);
+    const draft = list.items[list.count - 1] as Draft;
+    draft.saturates = limits.saturates;
     if (scaling !== "none") {
-      const draft = list.items[list.count - 1] as Draft;
       draft.scaled = scaling === "tensor" ? 1 : 2;
       draft.scaleLog2 = scaleLog2;
     }

@@ -166,6 +166,12 @@ describe("the loss value in an 8-bit format with scale factors", () => {
     expect(evaluateHazard(loss, context({ accumulate: BINARY16, scaling: "block" }))).toEqual(half);
   });
 
+  it("a saturating conversion is said to saturate, not overflow, as the tensors' findings say (OCP 8-bit specification: saturating mode clips to 448)", () => {
+    const saturating = e4m3(undefined, E4M3_SATURATING);
+    expect(saturating.evaluations[0]?.sentence).toMatch(/^The loss saturates in e4m3 when it exceeds 448 \(predicted 1000\)/);
+    expect(e4m3().evaluations[0]?.sentence).toMatch(/^The loss overflows e4m3 when/);
+  });
+
   it("with per-block scale factors, a block of one: clamped into the range, it overflows only past 2^127·2^9 = 2^136", () => {
     // shared exponent ⌊log2 1000⌋ − 8 = 1, so 1000/2 = 500 rounds to 512 and is clamped to 448 (OCP MX v1.0 §6 /
     // Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4): no NaN, under either overflow mode
