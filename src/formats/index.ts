@@ -5,6 +5,7 @@
 export { FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
 export {
   FORMATS,
+  MX_BLOCK,
   OVERFLOW_MODES,
   getFormat,
   makeFormat,

@@ -246,3 +246,9 @@ export function getFormat(name: string): Format {
 export function resolveOverflow(format: Format, overflow?: OverflowMode): OverflowMode {
   return overflow ?? format.defaultOverflow;
 }
+
+/**
+ * Block scaling of 8-bit formats (OCP Microscaling v1.0; Rouhani et al. 2023): elements per block (k = 32) and the
+ * shared exponents an E8M0 scale holds, 2^(0 − 127) … 2^(254 − 127) (SCIENCE.md §1.4).
+ */
+export const MX_BLOCK = { size: 32, minExponent: -127, maxExponent: 127 } as const;

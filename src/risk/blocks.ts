@@ -11,7 +11,7 @@
  * maximum beyond the element range by more than that clip. At the other end a block whose scale would fall below
  * E8M0's smallest, 2^-127, keeps 2^-127 and flushes below 2^-127 times the element format's flush bound.
  */
-import type { Format } from "../formats/index.js";
+import { MX_BLOCK, type Format } from "../formats/index.js";
 import { normalCdf, normalPdf } from "../numeric/index.js";
 
 /** The share of elements (and of squared norm) lost when a tensor is converted with per-block scale factors. */
@@ -32,10 +32,6 @@ export interface BlockScaledRisk {
   smallestScale: number;
 }
 
-/** The largest shared exponent an E8M0 scale holds: 2^(254 − 127) (OCP MX v1.0, the E8M0 scale; SCIENCE.md §1.4). */
-const E8M0_MAX_EXPONENT = 127;
-/** The smallest: 2^(0 − 127) (the same source). */
-const E8M0_MIN_EXPONENT = -127;
 
 /**
  * Analytic block-scaled conversion of Gaussian-like elements (the scale of the tensor cancels: each block's scale
@@ -43,7 +39,7 @@ const E8M0_MIN_EXPONENT = -127;
  * elements of the block independent and below it.
  * @example blockScaledRisk(FORMATS.e4m3).clippedFraction // => about 0.0086
  */
-export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flushBound">, blockSize = 32): BlockScaledRisk {
+export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flushBound">, blockSize: number = MX_BLOCK.size): BlockScaledRisk {
   if (!(Number.isInteger(blockSize) && blockSize >= 2)) throw new RangeError(`blockSize must be an integer ≥ 2. Value: ${blockSize}`);
   const n = blockSize;
   const totalEnergy = n; // E[Σ Z²] over a block
@@ -55,8 +51,8 @@ export function blockScaledRisk(format: Pick<Format, "emax" | "maxFinite" | "flu
     flushedFraction: (sums[0] as number) / mass / n,
     flushedEnergy: (sums[2] as number) / mass / totalEnergy,
     clippedFraction: (sums[1] as number) / mass / n,
-    scaleClampLevel: 2 ** (E8M0_MAX_EXPONENT + format.emax + 1),
-    smallestScale: 2 ** E8M0_MIN_EXPONENT,
+    scaleClampLevel: 2 ** (MX_BLOCK.maxExponent + format.emax + 1),
+    smallestScale: 2 ** MX_BLOCK.minExponent,
   };
 }
 
@@ -154,7 +150,7 @@ const cache = new Map<string, BlockScaledRisk>();
 export function blockScaledRiskCached(format: Pick<Format, "name" | "emax" | "maxFinite" | "flushBound">): BlockScaledRisk {
   let hit = cache.get(format.name);
   if (!hit) {
-    hit = blockScaledRisk(format, 32);
+    hit = blockScaledRisk(format, MX_BLOCK.size);
     cache.set(format.name, hit);
   }
   return hit;

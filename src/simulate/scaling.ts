@@ -8,13 +8,10 @@
  * either overflow mode. Only a block whose shared exponent would pass E8M0's largest, 127, keeps a scale too small
  * for it: its elements can leave the element range, and they overflow or saturate as the plan says.
  */
-import { countClasses, roundArrayInPlace, type ClassCounts, type Format, type RoundOptions } from "../formats/index.js";
+import { MX_BLOCK, countClasses, roundArrayInPlace, type ClassCounts, type Format, type RoundOptions } from "../formats/index.js";
 
 /** Elements sharing one scale in block scaling (OCP Microscaling v1.0: k = 32). */
-export const BLOCK_SIZE = 32;
-
-/** E8M0's shared exponents run from −127 to 127 (OCP Microscaling v1.0, the E8M0 scale; SCIENCE.md §1.4). */
-const E8M0_MAX_EXPONENT = 127;
+export const BLOCK_SIZE = MX_BLOCK.size;
 
 /** The per-block scales of one tensor, and which blocks had theirs clamped at E8M0's top. */
 export interface BlockScales {
@@ -35,7 +32,7 @@ function floorLog2(a: number): number {
 
 /** 2^k clamped to the E8M0 range 2^-127 … 2^127 (OCP Microscaling v1.0). */
 function e8m0(k: number): number {
-  return 2 ** Math.max(-E8M0_MAX_EXPONENT, Math.min(E8M0_MAX_EXPONENT, k));
+  return 2 ** Math.max(-MX_BLOCK.maxExponent, Math.min(MX_BLOCK.maxExponent, k));
 }
 
 /**
@@ -70,7 +67,7 @@ export function storageScales(data: Float64Array, format: Format, scaling: "none
     }
     const shared = floorLog2(amax) - format.emax;
     scales[b] = e8m0(-shared);
-    if (shared > E8M0_MAX_EXPONENT) {
+    if (shared > MX_BLOCK.maxExponent) {
       clamped[b] = 1;
       clampedCount++;
     }
