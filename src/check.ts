@@ -4,6 +4,7 @@
  */
 import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
+import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
@@ -381,7 +382,7 @@ function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan 
   const found = spec.plans.find((plan) => plan.name === name);
   if (found === undefined) {
     const names = [spec.precision.name, ...spec.plans.map((plan) => plan.name)];
-    throw new RangeError(`no plan named "${name}" in the spec; its plans: ${names.join(", ")}`);
+    throw new RangeError(`no plan named "${name}" in the spec${didYouMean(name, names)}; its plans: ${names.join(", ")}`);
   }
   return found;
 }

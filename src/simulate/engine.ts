@@ -20,6 +20,7 @@ import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
 import { crossEntropy, meanSquaredError } from "../ops/loss/kernel.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
+import { didYouMean } from "../spec/issues.js";
 import type { RoundFunction } from "../numeric/matmul.js";
 import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, roundScaledInPlace, storageScales } from "./scaling.js";
@@ -452,7 +453,7 @@ export function resolvePlan(spec: NetworkSpec, name: string | undefined): Precis
   const plan = spec.plans.find((p) => p.name === name);
   if (plan === undefined) {
     const known = [spec.precision.name, ...spec.plans.map((p) => p.name)];
-    throw new RangeError(`the spec has no plan named "${name}" (plans: ${known.join(", ")})`);
+    throw new RangeError(`the spec has no plan named "${name}"${didYouMean(name, known)} (plans: ${known.join(", ")})`);
   }
   return plan;
 }

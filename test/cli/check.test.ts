@@ -137,6 +137,12 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(text.status).toBe((JSON.parse(json.stdout) as { verdict: string }).verdict === "fails" ? 1 : 0);
   });
 
+  it("a misspelt plan gets the nearest plan name suggested", () => {
+    const check = runCli(["check", "--plan", "mixed-binary61", "specs/transformer-encoder.yaml"]);
+    expect(check.status).toBe(2);
+    expect(check.stderr).toContain('no plan named "mixed-binary61" in the spec (did you mean "mixed-binary16"?); its plans: ');
+  });
+
   it("an unknown plan names the spec's plans", () => {
     const run = runCli(["check", "--plan", "nope", "specs/deep-relu-he.yaml"]);
     expect(run.status).toBe(2);

@@ -199,6 +199,7 @@ describe("simulation engine", () => {
     const s = spec(MLP);
     expect(() => runSimulation(s, { draws: 0 })).toThrow(/draws must be .* got 0/);
     expect(() => runSimulation(s, { plan: "nope" })).toThrow(/no plan named "nope" \(plans: half\)/);
+    expect(() => runSimulation(s, { plan: "hlaf" })).toThrow(/no plan named "hlaf" \(did you mean "half"\?\) \(plans: half\)/);
     expect(() => runSimulation(s, { shrink: { width: 1.5 } })).toThrow(/shrink width must be a whole number ≥ 1, got 1.5/);
   });
 });
