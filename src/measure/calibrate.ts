@@ -324,8 +324,8 @@ export function applyMeasurements(
   const unusedStatistics: UnusedStatistic[] = [];
   for (const statistic of statistics) {
     const found = findTensor(prediction.tensors, statistic);
-    if (found === undefined || Array.isArray(found)) {
-      const candidates = found ?? [];
+    if (Array.isArray(found)) {
+      const candidates = found;
       const head = `${statistic.tensor} (${statistic.role}, ${statistic.at})`;
       const sentence = candidates.length === 0 ? `${head} matches no tensor` : `${head} fits ${candidates.length} tensors (${candidates.join(", ")}): name one by its id`;
       unusedStatistics.push({ tensor: statistic.tensor, role: statistic.role, at: statistic.at, candidates, sentence });
@@ -420,17 +420,16 @@ function measurementNotes(
   return notes;
 }
 
-/** A recorded statistic's tensor: its id, or its layer name with the role (unique within the layer). */
-// the tensor a row names (by id, or by layer and role when one tensor fits), else the ids of the several that fit, or
-// undefined when none does
-function findTensor(tensors: readonly TensorPrediction[], statistic: RecordedStatistic): TensorPrediction | string[] | undefined {
+/**
+ * The tensor a recorded row names (by id, or by layer and role when one tensor fits), else the ids of the tensors that
+ * fit: several, or none.
+ */
+function findTensor(tensors: readonly TensorPrediction[], statistic: RecordedStatistic): TensorPrediction | string[] {
   const byId = tensors.find((t) => t.id === statistic.tensor);
-  if (byId) return byId.role === statistic.role ? byId : undefined;
+  if (byId) return byId.role === statistic.role ? byId : [];
   const candidates = tensors.filter((t) => t.layer === statistic.tensor && t.role === statistic.role);
-  if (candidates.length === 0) return undefined;
-  return candidates.length === 1 ? candidates[0] : candidates.map((t) => t.id);
+  return candidates.length === 1 ? candidates[0]! : candidates.map((t) => t.id);
 }
-
 
 /** The profile a recorded statistic gives: rms over all elements, zero share (default: the prediction's), tail shape. */
 export function recordedProfile(statistic: RecordedStatistic, predicted: TensorPrediction): MagnitudeProfile {

@@ -32,7 +32,6 @@ export interface BlockScaledRisk {
   smallestScale: number;
 }
 
-
 /**
  * Analytic block-scaled conversion of Gaussian-like elements (the scale of the tensor cancels: each block's scale
  * follows its own maximum). Integrates over the distribution of a block's largest magnitude, with the other
