@@ -1,7 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // Two lookups of an embedding read the same row with probability 1/V (uniform token use), so two samples (or two
 // positions) share q/V of the looked-up values, and the c(c − 1) pairs of one row's lookups share the loss's curvature
@@ -23,10 +21,7 @@ layers:
   - { type: tanh, name: squash }
   - { type: dense, name: head, width: 12 }
 `;
-    const parsed = parseSpec(yaml, "tide-tables.yaml");
-    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-    const { comparison } = simulate(parsed.spec, { draws: 5, seed: 1, round: false, predict });
-    const d = new Map(comparison!.rows.filter((r) => /weight-gradient:(table|bias)$/.test(r.id)).map((r) => [r.id, r.differenceBinades]));
+    const d = measuredDifferences(yaml, "tide-tables", /weight-gradient:(table|bias)$/, 5);
     expect([...d.keys()].sort()).toEqual(["emb/weight-gradient:table", "head/weight-gradient:bias", "mix/weight-gradient:bias"]);
     expect(Math.abs(d.get("emb/weight-gradient:table")!)).toBeLessThan(0.2);
     // (the part left, ~0.3, is the products x·δ of two lookups of one row, which share more than E[x x']·E[δ δ'])
