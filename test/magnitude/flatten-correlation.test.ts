@@ -1,8 +1,6 @@
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
 import { correlatedSum, meanPairCorrelation } from "../../src/ops/common.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 describe("mean pairwise correlation of a batch × positions sum", () => {
   // the variance of a sum of N terms is N·q·(1 + (N − 1)·ρ̄), ρ̄ the mean over all ordered pairs (common practice):
@@ -61,11 +59,8 @@ layers:
 
 describe("a flatten's gradient, summed over the convolutions' pixels", () => {
   it("conv weight and bias gradients within 0.5 binade of the float64 simulation (median of 3 draws)", () => {
-    const parsed = parseSpec(TILES, "tile-grader.yaml");
-    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-    const { comparison } = simulate(parsed.spec, { draws: 3, seed: 1, round: false, predict });
-    const rows = comparison!.rows.filter((r) => /^c[12]\/weight-gradient(:bias)?$/.test(r.id));
-    expect(rows.map((r) => r.id).sort()).toEqual(["c1/weight-gradient", "c1/weight-gradient:bias", "c2/weight-gradient", "c2/weight-gradient:bias"]);
-    for (const row of rows) expect(Math.abs(row.differenceBinades), `${row.id}: ${row.differenceBinades.toFixed(2)} binades`).toBeLessThan(0.5);
+    const d = measuredDifferences(TILES, "tile-grader", /^c[12]\/weight-gradient(:bias)?$/, 3);
+    expect([...d.keys()].sort()).toEqual(["c1/weight-gradient", "c1/weight-gradient:bias", "c2/weight-gradient", "c2/weight-gradient:bias"]);
+    for (const [id, difference] of d) expect(Math.abs(difference), `${id}: ${difference.toFixed(2)} binades`).toBeLessThan(0.5);
   });
 });

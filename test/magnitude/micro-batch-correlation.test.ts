@@ -1,8 +1,6 @@
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
 import { betweenBatches, correlatedSum } from "../../src/ops/common.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // Two samples of one batch share a part of their gradient terms (a ReLU's positive mean passed on by the weights gives
 // every sample's logits the same offset); two samples of two different micro-batches or workers share exactly as much,
@@ -40,11 +38,8 @@ layers:
   - { type: relu, name: gate }
   - { type: dense, name: head, width: 6 }
 `;
-    const parsed = parseSpec(yaml, "loom-faults.yaml");
-    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-    const { comparison } = simulate(parsed.spec, { draws: 5, seed: 1, round: false, predict });
-    const rows = comparison!.rows.filter((r) => /weight-gradient/.test(r.id));
-    expect(rows.map((r) => r.id).sort()).toEqual(["head/weight-gradient", "head/weight-gradient:bias", "lower/weight-gradient", "lower/weight-gradient:bias"]);
-    for (const r of rows) expect(Math.abs(r.differenceBinades), `${r.id}: ${r.differenceBinades.toFixed(2)}`).toBeLessThan(0.35);
+    const d = measuredDifferences(yaml, "loom-faults", /weight-gradient/, 5);
+    expect([...d.keys()].sort()).toEqual(["head/weight-gradient", "head/weight-gradient:bias", "lower/weight-gradient", "lower/weight-gradient:bias"]);
+    for (const [id, difference] of d) expect(Math.abs(difference), `${id}: ${difference.toFixed(2)}`).toBeLessThan(0.35);
   });
 });
