@@ -5,17 +5,10 @@
  * checked against the float64 kernels in test/ops/cross-sample-correlation.test.ts; here the whole chain is.
  */
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 /** The comparison rows of a spec's weight and bias gradients: id → log2(measured / predicted), median of the draws. */
-function gradientDifferences(yaml: string, file: string, draws: number): Map<string, number> {
-  const parsed = parseSpec(yaml, file);
-  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-  const { comparison } = simulate(parsed.spec, { draws, seed: 1, round: false, predict });
-  return new Map(comparison!.rows.filter((r) => r.role === "weight-gradient").map((r) => [r.id, r.differenceBinades]));
-}
+const WEIGHT_GRADIENT = /\/weight-gradient(:|$)/;
 
 // An invented summariser of swell readings along a line of 16 buoys: 32 readings per buoy lifted by a ReLU layer,
 // one attention layer over the buoys, a flatten and 8 regression outputs. The ReLU's positive mean is a part every
@@ -61,7 +54,7 @@ const TOLERANCE = 0.5;
 
 describe("attention and the gated product carry the cross-sample pairs into the batch × positions sums", () => {
   it("attention: lift and attention weight and bias gradients within 0.5 binade of the float64 simulation (median of 9 draws)", () => {
-    const rows = gradientDifferences(BUOYS, "swell-summary.yaml", 9);
+    const rows = measuredDifferences(BUOYS, "swell-summary", WEIGHT_GRADIENT, 9);
     const ids = ["lift/weight-gradient", "lift/weight-gradient:bias", "att/weight-gradient:query", "att/weight-gradient:key", "att/weight-gradient:value", "att/weight-gradient:output"];
     for (const id of ids) {
       const diff = rows.get(id);
@@ -71,7 +64,7 @@ describe("attention and the gated product carry the cross-sample pairs into the 
   });
 
   it("gated product: the weight and bias gradients around it and the attention's within 0.5 binade of the float64 simulation (median of 9 draws)", () => {
-    const rows = gradientDifferences(GATED, "swell-summary-gated.yaml", 9);
+    const rows = measuredDifferences(GATED, "swell-summary-gated", WEIGHT_GRADIENT, 9);
     const ids = [
       "out/weight-gradient",
       "out/weight-gradient:bias",
