@@ -1,6 +1,6 @@
 /** Helpers shared by the analytic rules of several layer families. */
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
-import type { Factor, Gradient, Signal, Text } from "./types.js";
+import type { Curvature, Factor, Gradient, Signal, Text } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
@@ -226,4 +226,19 @@ export function gradientSum(batch: number, positions: number, delta: Gradient, i
   const sample = sampleCorrelationOf(input) * sampleCorrelationOf(delta);
   const cross = crossCorrelationOf(input) * crossCorrelationOf(delta);
   return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta), cross);
+}
+
+/**
+ * The loss's curvature seen through a random diagonal map D (a pointwise derivative, a dropout mask): E[D·M·D] with
+ * E[d_i²] = `onDiagonal` and E[d_i·d_j] = `offDiagonal` for i ≠ j, M's entries taken as independent of D (as Curvature).
+ */
+export function diagonalPullback(m: Curvature, onDiagonal: number, offDiagonal: number): Curvature {
+  const diagonalSquare = onDiagonal * onDiagonal * m.diagonalSquare;
+  const pulled: Curvature = {
+    diagonal: onDiagonal * m.diagonal,
+    diagonalSquare,
+    rowSquares: diagonalSquare + offDiagonal * offDiagonal * Math.max(m.rowSquares - m.diagonalSquare, 0),
+  };
+  if (m.indefinite === true) pulled.indefinite = true;
+  return pulled;
 }

@@ -10,7 +10,7 @@ import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
 import { activationFunction } from "../../numeric/activations.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
-import { NO_FACTORS, SOURCES, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, SOURCES, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
 
@@ -328,9 +328,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     // independent weights) (derived, as Curvature)
     const d2 = stash.derivativeSecond;
     const off = stash.derivativeMean * stash.derivativeMean;
-    const diagonalSquare = d2 * d2 * curvature.diagonalSquare;
-    gradient.curvature = { diagonal: d2 * curvature.diagonal, diagonalSquare, rowSquares: diagonalSquare + off * off * Math.max(curvature.rowSquares - curvature.diagonalSquare, 0) };
-    if (curvature.indefinite === true) gradient.curvature.indefinite = true;
+    gradient.curvature = diagonalPullback(curvature, d2, off);
     // the gradient holds M_ii·φ(u_i) of its own unit, which φ'(u_i) does not gate independently: its square is
     // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and its mean over the data, E[φ'φ]·M_ii, is the same for every
     // sample (a shared part the bias gradient sums coherently)

@@ -5,7 +5,7 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { DropoutLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt } from "../common.js";
+import { NO_FACTORS, diagonalPullback, factor, fmt } from "../common.js";
 import type { AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "inverted dropout, kept elements scaled by 1/(1 − rate) (Srivastava et al. 2014; common practice)";
@@ -42,11 +42,7 @@ export const dropoutRule: AnalyticRule<null> = {
     // the loss's curvature below the mask: E[D·M·D] over independent masks D = diag(m_i/keep), E[m_i·m_j]/keep² = 1 off
     // the diagonal and 1/keep on it, so M + (1/keep − 1)·diag(M) (derived, as Curvature)
     const m = output.curvature;
-    if (m !== undefined) {
-      const diagonalSquare = ratio * ratio * m.diagonalSquare;
-      input.curvature = { diagonal: ratio * m.diagonal, diagonalSquare, rowSquares: Math.max(m.rowSquares - m.diagonalSquare, 0) + diagonalSquare };
-      if (m.indefinite === true) input.curvature.indefinite = true;
-    }
+    if (m !== undefined) input.curvature = diagonalPullback(m, ratio, 1);
     return { input, factors: ctx.ledger ? [factor(ratio, () => `dropout: 1/(1 − ${fmt(rate)}) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };
