@@ -440,7 +440,8 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
 }
 
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout"]);
-const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "flatten"]);
+// a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
+const CARRIES_CURVATURE: ReadonlySet<string> = new Set([...CARRIES_COVARIANCE, "flatten"]);
 
 /**
  * What a gradient keeps on its way down: only the rectifier right before a max-pool may use the arg-max position,
@@ -452,8 +453,7 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
   if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
   // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout and
-  // flattens only
-  // (see Curvature)
+  // flattens only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
 }
 
