@@ -32,7 +32,7 @@ function floorLog2(a: number): number {
 
 /** 2^k clamped to the E8M0 range 2^-127 … 2^127 (OCP Microscaling v1.0). */
 function e8m0(k: number): number {
-  return 2 ** Math.max(-MX_BLOCK.maxExponent, Math.min(MX_BLOCK.maxExponent, k));
+  return 2 ** Math.max(MX_BLOCK.minExponent, Math.min(MX_BLOCK.maxExponent, k));
 }
 
 /**
