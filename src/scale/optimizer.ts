@@ -17,6 +17,7 @@ import {
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
+import { nonzeroElements } from "../risk/profile.js";
 import { notCountedSentence, plainNumber, sentenceStart, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
@@ -236,7 +237,7 @@ function gradientClip(optimizer: OptimizerSpec, pairs: readonly { gradient: Tens
     let squares = 0;
     for (let i = 0; i < pairs.length; i++) {
       const p = (pairs[i] as { gradient: TensorPrediction }).gradient[side];
-      squares += p.elements * (1 - p.zeroFraction) * p.rms * p.rms;
+      squares += nonzeroElements(p) * p.rms * p.rms;
     }
     const norm = Math.sqrt(squares);
     if (norm > c) clip[side] = { factor: c / norm, globalNorm: norm };
