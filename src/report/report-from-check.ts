@@ -134,12 +134,13 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
   const scales = lossScaleModels(result);
   const scaleReasons = scales.flatMap((s) => (s.summary.status === "empty" ? [s.summary.reason] : []));
   const reasons = [...result.formats.flatMap((f) => f.reasons), ...scaleReasons, ...optimizerReasons];
+  const settings = planSettings(result.plan);
   return {
     title: result.spec.name,
     description: result.spec.description,
     source: result.spec.source,
     plan: result.plan.name,
-    ...(planSettings(result.plan) === "" ? {} : { planSettings: planSettings(result.plan) }),
+    ...(settings === "" ? {} : { planSettings: settings }),
     verdict: result.verdict,
     reasons: [...new Set(reasons)],
     formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h), planned: f.planned })),
