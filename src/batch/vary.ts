@@ -410,7 +410,7 @@ function insertPair(map: unknown, text: string, counter: LineCounter, pairText: 
     const last = map.items[map.items.length - 1];
     const lastEnd = (last?.value as { range?: number[] } | null)?.range?.[1] ?? (last?.key as { range?: number[] } | null)?.range?.[1];
     if (lastEnd !== undefined) {
-      const at = lastEnd - (text.slice(0, lastEnd).length - trimLineEnds(text.slice(0, lastEnd)).length);
+      const at = trimLineEnds(text.slice(0, lastEnd)).length;
       return { start: at, end: at, text: `, ${pairText}` };
     }
     const close = text.lastIndexOf("}", map.range[1] - 1);
