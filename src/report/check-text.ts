@@ -97,7 +97,6 @@ export function describePlan(plan: PrecisionPlan): string {
   return parts.join(", ") + (settings === "" ? "" : `; ${settings}`);
 }
 
-
 /**
  * The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. With
  * `formats`, the line names the judged formats it is about ("loss scale for e5m2: ...").
