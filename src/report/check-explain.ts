@@ -7,7 +7,7 @@ import type { CheckResult, TensorCheck } from "../risk/index.js";
 import { formatBinades, formatPercent, formatProbability, formatValue } from "./number.js";
 import { verdictText, wrap } from "./check-text.js";
 import { PLAIN, type Style } from "./style.js";
-import { renderTable } from "./table.js";
+import { renderTable, visibleWidth } from "./table.js";
 
 /** Options of {@link renderExplainText}. */
 export interface ExplainTextOptions {
@@ -108,8 +108,9 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
       rows,
       { indent: "  ", styleHeader: (text) => style.role("strong", text) },
     );
-    // a rule cut to the column loses its numbers at the end: the cut ones are given in full, by row number
-    const cut = ledger.map((entry, index) => ({ entry, index })).filter(({ entry }) => [...entry.rule].length > RULE_WIDTH);
+    // a rule cut to the column loses its numbers at the end: the cut ones are given in full, by row number (measured as
+    // the table measures a cell)
+    const cut = ledger.map((entry, index) => ({ entry, index })).filter(({ entry }) => visibleWidth(entry.rule) > RULE_WIDTH);
     if (cut.length > 0) {
       out += "  Rules cut above, in full:\n";
       for (const { entry, index } of cut) out += wrap(entry.rule, width, `    ${index + 1}. `, "       ");
