@@ -22,7 +22,8 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     String(i + 1),
     o.plan.name + (o.fromSpec ? " (spec)" : ""),
     verdictText(o.verdict, style),
-    // worded as the batch table words it: "none" told both a plan that needs no scale and one no static scale fits
+    // told apart as the batch table tells them ("not needed" there too; its "none" for an empty window is "none fits" here):
+    // a bare "none" read the same for a plan that needs no scale and one that no static scale fits
     o.lossScale !== null ? formatPowerOfTwo(Math.log2(o.lossScale)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
     `${o.cost.bytesPerParameter} B`,
     `${o.cost.bytesPerActivation} B`,
