@@ -89,4 +89,3 @@ describe("report carries the spec's warnings", () => {
     expect(run.stdout).toMatch(/<p class="description">Warnings \(judged as written\):<\/p><ul><li>[^<]*short\.yaml:3:\d+: training\.optimizer\.warmup-steps: warm-up \(100 steps\) is longer than the horizon/);
   });
 });
-
