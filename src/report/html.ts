@@ -46,6 +46,12 @@ function capitalised(text: string): string {
   return text.charAt(0).toUpperCase() + text.slice(1);
 }
 
+/** A titled list of sentences in the page's header; nothing when there are none. */
+function headerList(title: string, items: readonly string[] | undefined): string {
+  if (items === undefined || items.length === 0) return "";
+  return `<p class="description">${e(title)}:</p><ul>${items.map((item) => `<li>${e(item)}</li>`).join("")}</ul>`;
+}
+
 /** "2^k" with the exponent raised, for SVG text. */
 function powerSvg(exponent: number): string {
   return `2<tspan class="sup" dy="-5">${e(String(exponent))}</tspan>`;
@@ -514,13 +520,9 @@ export function renderHtmlReport(model: ReportModel): string {
     `<dl class="facts"><dt>spec</dt><dd><code>${e(model.source)}</code></dd><dt>precision plan</dt><dd>${e(model.plan)}${model.planSettings === undefined ? "" : ` (${e(model.planSettings)})`}</dd>`,
     `<dt>tensors</dt><dd>${model.tensors.length}</dd></dl>`,
     // recorded rows the check could not use: the user gave them, so the page says so before any verdict
-    model.unusedStatistics !== undefined && model.unusedStatistics.length > 0
-      ? `<p class="description">Recorded statistics not used:</p><ul>${model.unusedStatistics.map((u) => `<li>${e(u)}</li>`).join("")}</ul>`
-      : "",
+    headerList("Recorded statistics not used", model.unusedStatistics),
     // the spec's warnings: judged as written, as the terminal and the Markdown say
-    model.warnings !== undefined && model.warnings.length > 0
-      ? `<p class="description">Warnings (judged as written):</p><ul>${model.warnings.map((w) => `<li>${e(w)}</li>`).join("")}</ul>`
-      : "",
+    headerList("Warnings (judged as written)", model.warnings),
     `</header>`,
     `<section class="verdict ${verdictClass(model.verdict)}" aria-labelledby="verdict"><h2 id="verdict">Verdict</h2>`,
     `<p class="verdict-word">${e(capitalised(verdictWords(model.verdict)))}</p>${reasons}<p class="caveat">${e(CAVEAT)}</p></section>`,
