@@ -5,7 +5,7 @@
 import { FORMAT_NAMES } from "../formats/names.js";
 import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
 import { renderCsv, type CsvField } from "./csv.js";
-import { controlEscape, escapeMarkdown, markdownTable, type MarkdownCell } from "./markdown.js";
+import { controlEscape, escapeMarkdown, markdownList, markdownTable, type MarkdownCell } from "./markdown.js";
 import { lossScaleCells } from "./loss-scale.js";
 import { formatBinades, formatCompactCount, formatPercent, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
@@ -347,15 +347,8 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
     cells,
   );
   const errors = rows.filter((row): row is Extract<BatchRow, { status: "error" }> => row.status === "error");
-  if (errors.length > 0) {
-    out += "\nCould not be evaluated:\n\n";
-    for (const row of errors) out += `- ${escapeMarkdown(errorLine(row))}\n`;
-  }
-  const warned = warningLines(rows);
-  if (warned.length > 0) {
-    out += "\nWarnings (judged as written):\n\n";
-    for (const line of warned) out += `- ${escapeMarkdown(line)}\n`;
-  }
+  out += markdownList("Could not be evaluated", errors.map(errorLine));
+  out += markdownList("Warnings (judged as written)", warningLines(rows));
   out += `\n_${escapeMarkdown(ESTIMATE_NOTE)}_\n`;
   return out;
 }

@@ -2,7 +2,7 @@
  * `check --md`: a check result as GitHub Markdown for a CI comment: the verdict, a table of formats,
  * the worst findings and the loss scale. Pure.
  */
-import { escapeMarkdown, markdownCode, markdownTable } from "./markdown.js";
+import { escapeMarkdown, markdownCode, markdownList, markdownTable } from "./markdown.js";
 import { formatRiskValue, verdictWords } from "./batch.js";
 import { lossScaleClause, lossScaleSummaries, namesGradientFormats } from "./loss-scale.js";
 import type { CheckAnswer } from "../check.js";
@@ -96,11 +96,7 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
     for (const u of unused) out += `- ${escapeMarkdown(u.sentence)}\n`;
   }
   // as batch --md lists them: a CI comment is often all a reader sees, and the warnings go to stderr only
-  const warnings = options.warnings ?? [];
-  if (warnings.length > 0) {
-    out += "\nWarnings (judged as written):\n\n";
-    for (const warning of warnings) out += `- ${escapeMarkdown(warning)}\n`;
-  }
+  out += markdownList("Warnings (judged as written)", options.warnings ?? []);
   out += `\n_${escapeMarkdown(result.caution)}_\n`;
   return out;
 }

@@ -44,6 +44,12 @@ export function escapeMarkdown(text: string): string {
   );
 }
 
+/** A titled bullet list of plain-text lines, after a blank line; "" when there are none. */
+export function markdownList(title: string, lines: readonly string[]): string {
+  if (lines.length === 0) return "";
+  return `\n${title}:\n\n` + lines.map((line) => `- ${escapeMarkdown(line)}\n`).join("");
+}
+
 /** Inline code for plain text; a backtick inside is shown as itself (longer fence, CommonMark §6.1). */
 export function markdownCode(text: string): string {
   const flat = text.replace(/\r\n|\r|\n/g, " ").replaceAll("|", "\\|");
