@@ -11,6 +11,7 @@ import {
   NO_FACTORS,
   SOURCES,
   crossCorrelationOf,
+  diagonalPullback,
   factor,
   fmt,
   gradientSum,
@@ -248,8 +249,7 @@ function alignedParts(stash: GatedStash, output: Gradient, N: number, D: number,
   const m = output.curvature;
   if (m === undefined) return { gate: 0, up: 0, down: 0 };
   const h = densePullback(m, wd, D, hidden);
-  const mean2 = stash.gateMean * stash.gateMean;
-  const upRows = stash.gateSecond * stash.gateSecond * h.diagonalSquare + mean2 * mean2 * Math.max(h.rowSquares - h.diagonalSquare, 0);
+  const upRows = diagonalPullback(h, stash.gateSecond, stash.gateMean * stash.gateMean).rowSquares;
   const gateDiagonal = stash.gateDerivativeSecond * stash.up.q;
   const x2 = stash.input.q * stash.input.q;
   return {
