@@ -8,7 +8,7 @@ import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
-import { checkedFormats, judgePrediction, planFor, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { checkedFormats, judgePrediction, planFor, worseVerdict, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
@@ -78,8 +78,6 @@ export interface CheckAnswerOptions extends CheckOptions {
   seed?: number;
 }
 
-const SEVERITY: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
-
 /**
  * Judge a network spec against its precision plan (or the formats given), answer the loss scale and check the
  * optimizer. When no loss scale is given (by the plan or the options), each judged format whose plan as judged
@@ -124,7 +122,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // an answer counts when its gradient format is judged (a planned format holding no gradients, such as binary32 for
   // the states, is judged at the plan's scale, but its answer is not about it)
   const judgedNames = judged.formats.map((f) => f.format);
-  let verdict = [judged.verdict, optimizer.verdict].reduce((a, b) => (SEVERITY[b] > SEVERITY[a] ? b : a));
+  let verdict = worseVerdict(judged.verdict, optimizer.verdict);
   const told: LossScaleAnswer[] = [];
   for (const answer of answers) {
     // no static scale: failing, unless a dynamic scale is expected to cope (then at risk)
@@ -134,7 +132,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
       continue;
     }
     told.push(answer);
-    if (SEVERITY[scaleVerdict] > SEVERITY[verdict]) verdict = scaleVerdict;
+    verdict = worseVerdict(verdict, scaleVerdict);
   }
   const answer = told[0] ?? null;
   const lossScales = lossScaleItems(judged, plan, told);

@@ -5,7 +5,7 @@
 import { check, type MeasuredNetwork } from "./check.js";
 import { getFormat } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
-import type { CheckResult, Verdict } from "./risk/index.js";
+import { VERDICT_RANK, worseVerdict, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import type { OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
@@ -87,8 +87,6 @@ export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckRe
   return { bytesPerParameter, bytesPerActivation, parameterBytes: parameters * bytesPerParameter, activationBytes: activations * bytesPerActivation };
 }
 
-const ORDER: Record<Verdict, number> = { fits: 0, "at-risk": 1, fails: 2 };
-
 /** Options of {@link comparePlans}. */
 export interface CompareOptions {
   /** the plans to evaluate (default: the standard plans, and the spec's own) */
@@ -136,7 +134,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       fromSpec: own.includes(plan),
       lossScale,
       lossScaleAnswer: answer,
-      checkVerdict: result.formats.reduce((worst, f) => (ORDER[f.verdict] > ORDER[worst] ? f.verdict : worst), "fits" as Verdict),
+      checkVerdict: result.formats.reduce((worst, f) => worseVerdict(worst, f.verdict), "fits" as Verdict),
       optimizer,
       verdict,
       trainsSafely: verdict !== "fails",
@@ -151,9 +149,9 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   const ranked = [...outcomes].sort(
     (a, b) =>
       Number(b.trainsSafely) - Number(a.trainsSafely) ||
-      (a.trainsSafely ? 0 : ORDER[a.verdict] - ORDER[b.verdict]) ||
+      (a.trainsSafely ? 0 : VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict]) ||
       a.cost.parameterBytes + a.cost.activationBytes - (b.cost.parameterBytes + b.cost.activationBytes) ||
-      ORDER[a.verdict] - ORDER[b.verdict],
+      VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict],
   );
   return {
     spec: { name: spec.name, source: spec.source },

@@ -5,7 +5,8 @@ import { ROOT } from "./helpers/run.js";
 
 /**
  * Who may import whom (DEVELOPERS.md, "Architecture"). Dependencies point down the list; anything not listed is
- * not allowed, which also rules out cycles. `report` may import anything as types only (it renders results);
+ * not allowed, which also rules out cycles. `report` may import anything as types only (it renders results), and
+ * one value module of risk, the order of verdicts (src/risk/verdict-order.ts), which imports nothing but types;
  * type-only imports are otherwise held to the same table.
  */
 const ALLOWED: Record<string, readonly string[]> = {
@@ -44,8 +45,13 @@ interface Edge {
   from: string;
   to: string;
   file: string;
+  /** the imported file, relative to the project */
+  target: string;
   typeOnly: boolean;
 }
+
+/** The one value module of another layer that report may import: the order of verdicts, shared with check and compare. */
+const REPORT_VALUE_IMPORTS: readonly string[] = ["src/risk/verdict-order.ts"];
 
 function edges(): Edge[] {
   const out: Edge[] = [];
@@ -55,7 +61,7 @@ function edges(): Edge[] {
       const target = resolve(dirname(file), match[3]!.replace(/\.js$/, ".ts"));
       const from = moduleOf(file);
       const to = moduleOf(target);
-      if (from !== to) out.push({ from, to, file: relative(ROOT, file), typeOnly: Boolean(match[2]) });
+      if (from !== to) out.push({ from, to, file: relative(ROOT, file), target: relative(ROOT, target), typeOnly: Boolean(match[2]) });
     }
   }
   return out;
@@ -74,10 +80,17 @@ describe("architecture: module dependencies point down (DEVELOPERS.md)", () => {
       if (allowed === undefined) return true;
       if (allowed.includes("*")) return false;
       if (allowed.includes("*-cli")) return edge.to === "cli";
-      if (edge.from === "report" && edge.typeOnly) return false;
+      if (edge.from === "report" && (edge.typeOnly || REPORT_VALUE_IMPORTS.includes(edge.target))) return false;
       return !allowed.includes(edge.to);
     });
     expect(bad.map((e) => `${e.file}: ${e.from} -> ${e.to}${e.typeOnly ? " (type)" : ""}`)).toEqual([]);
+  });
+
+  it("the value modules report may import import nothing but types", () => {
+    for (const file of REPORT_VALUE_IMPORTS) {
+      const imports = [...readFileSync(join(ROOT, file), "utf8").matchAll(/^(import|export)\s+(type\s+)?[^;]*?from\s+"[^"]+"/gms)];
+      expect(imports.filter((m) => m[2] === undefined).map((m) => m[0]), file).toEqual([]);
+    }
   });
 
   it("core modules do no console or process I/O (only cli/ and measure's readers touch files)", () => {

@@ -4,6 +4,7 @@
  */
 import type { CheckAnswer } from "../check.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
+import { VERDICT_RANK } from "../risk/verdict-order.js";
 import { itemSummary, lossScaleClause, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { planSettings } from "./plan-settings.js";
@@ -311,14 +312,12 @@ export function renderHazards(hazards: readonly HazardCheck[], all: boolean, wid
   return out;
 }
 
-const RANK: Readonly<Record<Verdict, number>> = { fits: 0, "at-risk": 1, fails: 2 };
-
 /**
  * Where an overall verdict comes from when no format's verdict is as bad: the optimizer check or the loss scale (README,
  * Verdicts), which the sections below tell; without it "Verdict fails" stands over a list of formats that all fit.
  */
 function verdictSource(result: CheckResult): string {
-  if (result.formats.some((f) => RANK[f.verdict] >= RANK[result.verdict])) return "";
+  if (result.formats.some((f) => VERDICT_RANK[f.verdict] >= VERDICT_RANK[result.verdict])) return "";
   const answer = result as Partial<CheckAnswer>;
   const sources = [
     ...(answer.optimizer !== undefined && answer.optimizer.verdict === result.verdict ? ["the optimizer check"] : []),

@@ -6,6 +6,7 @@
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
+import { VERDICT_RANK } from "../risk/verdict-order.js";
 import { itemSummary, lossScaleSummaries } from "./loss-scale.js";
 
 /** How each kind of finding is named in a row, and what its number measures. */
@@ -52,8 +53,6 @@ export function compareFindings(a: Finding, b: Finding): number {
 export function findingsWorstFirst(result: CheckResult): Finding[] {
   return result.formats.flatMap((format) => format.findings).sort(compareFindings);
 }
-
-const VERDICT_RANK = { fits: 0, "at-risk": 1, fails: 2 } as const;
 
 /**
  * The worst finding as a row cell, or null when the check found nothing. When the optimizer check

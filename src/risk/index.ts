@@ -6,6 +6,7 @@ export * from "./profile.js";
 export * from "./tensor.js";
 export * from "./hazards.js";
 export * from "./verdict.js";
+export { VERDICT_RANK } from "./verdict-order.js";
 export { plainNumber, percent, binades } from "./words.js";
 export * from "./judge.js";
 export * from "./find.js";

@@ -57,8 +57,5 @@ export function judge(findings: readonly Finding[]): Judgement {
   return { verdict: worstVerdict(findings), reasons };
 }
 
-/** The worse of two verdicts. */
-export function worseVerdict(a: Verdict, b: Verdict): Verdict {
-  if (a === "fails" || b === "fails") return "fails";
-  return a === "at-risk" || b === "at-risk" ? "at-risk" : "fits";
-}
+// the order of verdicts lives in one module that the renderers may import too
+export { worseVerdict } from "./verdict-order.js";
