@@ -144,6 +144,45 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   return result;
 }
 
+/** The loss scale {@link check} judges a plan's own gradients at, with the answer it comes from. */
+export interface GradientLossScale {
+  value: number;
+  /** plan: the plan's own scale; recommended: the (weighed) pick of the window; none: 1 (no scale needed, or the window is empty) */
+  origin: "plan" | "recommended" | "none";
+  /** the loss-scale answer for the plan's gradients, as check's; null when they need no scale */
+  answer: LossScaleAnswer | null;
+}
+
+/**
+ * The loss scale {@link check} judges the plan's gradients at, and its answer, without the rest of the check (no
+ * tensor or operation is judged but those the pick is weighed on, and the optimizer is not checked): the plan's own
+ * scale, else the pick of the window for its gradients weighed as check weighs it, else 1. Made from the same inputs
+ * check gives the loss-scale answer (the prediction for the spec under the plan, the horizon's steps, the seed), so the
+ * two agree. Uses none of the spec's measured data (a check given none). Throws as check does.
+ * @example gradientLossScale(deepReluGlorot, { plan: "mixed-binary16" }).value // => 262144 (2^18, as check judges it)
+ */
+export function gradientLossScale(spec: NetworkSpec, options: { plan?: string; seed?: number } = {}): GradientLossScale {
+  assertSpec(spec, "gradientLossScale");
+  const plan = choosePlan(spec, options.plan);
+  const given = plan.lossScale !== undefined ? ({ value: plan.lossScale, origin: "plan" } as const) : undefined;
+  // a plan that gives its scale needs no answer to run at it; one whose gradients need none has no answer
+  if (given !== undefined && !needsLossScale(plan)) return { ...given, answer: null };
+  if (!needsLossScale(plan)) return { value: 1, origin: "none", answer: null };
+  const built = buildGraph(spec);
+  if (!built.ok) throw new CheckInputError(built.issues);
+  const planned = { ...spec, precision: plan };
+  const prediction = predict(built.graph, planned);
+  const checkOptions: CheckAnswerOptions = options.seed === undefined ? {} : { seed: options.seed };
+  let answer = lossScaleAnswers(prediction, plan, [plan.gradients], checkOptions, spec.training.horizon.steps)[0] ?? null;
+  if (answer === null) throw new Error(`internal: ${plan.gradients} gradients need a loss scale but have no answer`);
+  // weighed as check weighs it, with the centre judged here: the same pick (src/scale/pick.ts)
+  const found = weighPick(planned, prediction, answer.format, answer.window, answer.options.marginBinades, checkOptions);
+  if (found !== null) answer = withWeighedPick(answer, found.pickLog2, found.weighing);
+  if (given !== undefined) return { ...given, answer };
+  const pick = answer.window.pickLog2;
+  return pick === null ? { value: 1, origin: "none", answer } : { value: 2 ** pick, origin: "recommended", answer };
+}
+
 /**
  * The answers with each window's pick weighed against the findings it leaves (src/scale/pick.ts), and whether a pick
  * moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale has its

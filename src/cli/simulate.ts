@@ -17,7 +17,7 @@ import {
   type SimulationReport,
   type SimulationResult,
 } from "../simulate/index.js";
-import { check, CheckInputError, unscaledReason } from "../check.js";
+import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
 import { scaleWords } from "../risk/words.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { parseLossScale } from "./loss-scale.js";
@@ -89,7 +89,8 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
  */
 export function checkedLossScale(original: NetworkSpec): DefaultLossScale {
   return (simulated, { plan, shrunk }): DefaultLossScaleAnswer => {
-    const applied = judgedScale(simulated, plan.name);
+    // the check's loss-scale answer alone, not a whole check
+    const applied = gradientLossScale(simulated, { plan: plan.name });
     if (applied.origin === "recommended") {
       if (!shrunk) return { value: applied.value, origin: "recommended", reason: "recommended by check" };
       const full = fullSizeScale(original, plan.name);
@@ -103,16 +104,9 @@ export function checkedLossScale(original: NetworkSpec): DefaultLossScale {
   };
 }
 
-// the scale check judges the plan's gradients at: that of the format holding them (every format of a plan judged as
-// itself shares the plan's gradients, so they share one scale)
-function judgedScale(spec: NetworkSpec, plan: string): { value: number; origin: string } {
-  const result = check(spec, { plan });
-  return result.formats.find((f) => f.holds.includes("gradients"))?.lossScale ?? result.lossScale;
-}
-
 function fullSizeScale(spec: NetworkSpec, plan: string): { value: number; origin: string } | undefined {
   try {
-    return judgedScale(spec, plan);
+    return gradientLossScale(spec, { plan });
   } catch (error) {
     // the simulation runs the shrunk network only; a full-size network that does not build just goes unnamed
     if (error instanceof CheckInputError) return undefined;
