@@ -391,3 +391,139 @@ function normalisedGaussianWeights(n: number, h: number): Float64Array {
   for (let i = 0; i < n; i++) w[i] = (w[i] as number) / total;
   return w;
 }
+
+/**
+ * What the rows of an attention matrix hold on average, for rows of n keys whose logits z_j are independent N(0, s²):
+ * the moments a softmax row's forward average and Jacobian need beyond E[p²].
+ */
+export interface SoftmaxRowMoments {
+  /** E[Σ_j p_j²] (n·E[p²] of gaussianSoftmaxMoments) */
+  sumSquares: number;
+  /**
+   * E[Σ_j p_j²·(1 − 2p_j + Σ_l p_l²)] = E[S + S² − 2·Σ_j p_j³], S = Σ_j p_j²: the share of key-wise independent
+   * gradients g_j of unit variance that the softmax Jacobian keeps, E[Σ_j (p_j·(g_j − Σ_l p_l g_l))²] (own algebra)
+   */
+  centred: number;
+  /** E[(Σ_j p_j z_j)²]/s²: the second moment of the softmax-weighted logit, in units of the logits' variance */
+  tilt: number;
+  /** E[Σ_j p_j z_j]/s², which Stein's lemma fixes at 1 − E[S] (Stein 1981, Lemma 1): a check of the quadrature */
+  tiltMean: number;
+}
+
+/** Rows of one-hot attention: the largest of n logits takes the whole row; tilt ≈ E[max]², the maximum's own spread left out (rough). */
+function oneHotRows(variance: number, n: number): SoftmaxRowMoments {
+  const top = expectedMaxNormal(n);
+  return { sumSquares: 1, centred: 0, tilt: top * top, tiltMean: top / Math.sqrt(variance) };
+}
+
+/**
+ * gaussianSoftmaxRows for every row length n = 1 … maxKeys at logit variance s² (index n − 1), to quadrature accuracy.
+ *
+ * Method as gaussianSoftmaxMoments (Laplace transform, Cressie et al. 1981; trapezoid rule, Trefethen & Weideman 2014):
+ * with y = t·e^z and A_m(t) = E[y^m·e^(−y)] = t^m·L_m(t), E[p_1^m] = (1/Γ(m))·∫ A_m·L_0^(n−1) d(ln t),
+ * E[p_1²·p_2²] = (1/6)·∫ A_2²·L_0^(n−2) d(ln t), E[p_1²·z_1²] = ∫ E[z²·y²·e^(−y)]·L_0^(n−1) d(ln t) and
+ * E[p_1·p_2·z_1·z_2] = ∫ E[z·y·e^(−y)]²·L_0^(n−2) d(ln t) (1/x^m = (1/Γ(m))·∫ t^(m−1)·e^(−t·x) dt; own algebra), on the
+ * lattice of gaussianSoftmaxMoments at the largest n (the smaller rows' integrands vanish below its anchor too), with
+ * z = s·x taken at the Gaussian nodes, so that no ln y is formed. The powers L_0^(n−1) are built by repeated
+ * products over n. Below s² = 10⁻⁴ the first-order expansion p ≈ (1 + z − z̄)/n is used, above 400 the one-hot limit.
+ * Returns an empty list for a non-finite or negative variance or fewer than one key.
+ */
+export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxRowMoments[] {
+  if (!(variance >= 0) || !Number.isFinite(variance) || !(maxKeys >= 1) || !Number.isInteger(maxKeys)) return [];
+  const rows: SoftmaxRowMoments[] = [];
+  if (variance > ONE_HOT_VARIANCE) {
+    for (let n = 1; n <= maxKeys; n++) rows.push(oneHotRows(variance, n));
+    return rows;
+  }
+  if (variance < SMALL_VARIANCE) {
+    // p ≈ (1 + z − z̄)/n (derived): S = (1 + s²(1 − 1/n))/n, Σ p z ≈ z̄ + Σ z(z − z̄)/n of second moment
+    // s²/n + s⁴(1 − 1/n)² and mean s²(1 − 1/n); the Jacobian's share to zeroth order
+    for (let n = 1; n <= maxKeys; n++) {
+      const spread = 1 - 1 / n;
+      rows.push({ sumSquares: (1 + variance * spread) / n, centred: spread / n, tilt: 1 / n + variance * spread * spread, tiltMean: spread });
+    }
+    return rows;
+  }
+  const s = Math.sqrt(variance);
+  const { k, spacing, n: nz, weights, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, maxKeys, NEG_INF);
+  // z = s·x at the Gaussian nodes (x on a grid of step h = spacing/s centred on 0)
+  const wz = new Float64Array(nz);
+  const wzz = new Float64Array(nz);
+  for (let i = 0; i < nz; i++) {
+    const z = (i - (nz - 1) / 2) * spacing;
+    wz[i] = (weights[i] as number) * z;
+    wzz[i] = (weights[i] as number) * z * z;
+  }
+  const a0 = new Float64Array(latticeLength);
+  const a1 = new Float64Array(latticeLength);
+  const a2 = new Float64Array(latticeLength);
+  const a3 = new Float64Array(latticeLength);
+  const a4 = new Float64Array(latticeLength);
+  rowTransforms(a0, a1, a2, a3, a4, base, spacing);
+  // running sums per row length: E[p²], E[p³], E[p⁴], E[p_1²p_2²], E[p z], E[p² z²], E[p_1 p_2 z_1 z_2]
+  const sums = Array.from({ length: 7 }, () => new Float64Array(maxKeys));
+  for (let m = 0; m < steps; m++) {
+    const offset = m * k;
+    const oneMinusL0 = dot(weights, a0, offset, nz);
+    const l0 = 1 - oneMinusL0;
+    rowStep(sums, l0, dot(weights, a2, offset, nz), dot(weights, a3, offset, nz), dot(weights, a4, offset, nz), dot(wz, a1, offset, nz), dot(wzz, a2, offset, nz), maxKeys);
+  }
+  for (let n = 1; n <= maxKeys; n++) {
+    const i = n - 1;
+    const at = (r: number): number => (sums[r] as Float64Array)[i] as number;
+    const p2 = at(0) * U_STEP;
+    const p3 = (at(1) * U_STEP) / 2;
+    const p4 = (at(2) * U_STEP) / 6;
+    const p2p2 = (at(3) * U_STEP) / 6;
+    const pz = at(4) * U_STEP;
+    const p2z2 = at(5) * U_STEP;
+    const pzpz = at(6) * U_STEP;
+    const S = n * p2;
+    rows.push({
+      sumSquares: S,
+      centred: Math.max(S + n * p4 + n * (n - 1) * p2p2 - 2 * n * p3, 0),
+      tilt: (n * p2z2 + n * (n - 1) * pzpz) / variance,
+      tiltMean: (n * pz) / variance,
+    });
+  }
+  return rows;
+}
+
+/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0 and y^m·e^(−y) into a_m. */
+function rowTransforms(a0: Float64Array, a1: Float64Array, a2: Float64Array, a3: Float64Array, a4: Float64Array, base: number, spacing: number): void {
+  for (let j = 0; j < a0.length; j++) {
+    const y = Math.exp(base + j * spacing);
+    const e = Math.exp(-y);
+    a0[j] = -Math.expm1(-y);
+    if (e > 0) {
+      a1[j] = y * e;
+      a2[j] = y * y * e;
+      a3[j] = y * y * y * e;
+      a4[j] = y * y * y * y * e;
+    }
+  }
+}
+
+/**
+ * One node of ln t of gaussianSoftmaxRows for every row length: the one-class transforms A_2, A_3, A_4, E[z·y·e^(−y)]
+ * and E[z²·y²·e^(−y)], weighted by L_0^(n−1) (and L_0^(n−2) for the pairs), added into the running sums.
+ */
+function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: number, zy: number, zzyy: number, maxKeys: number): void {
+  const [s0, s1, s2, s3, s4, s5, s6] = sums as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];
+  const pair2 = a2 * a2;
+  const pairZ = zy * zy;
+  let power = 1; // L_0^(n−1)
+  let previous = 0; // L_0^(n−2), none for n = 1
+  for (let i = 0; i < maxKeys; i++) {
+    if (power === 0 && previous === 0) break;
+    s0[i] = (s0[i] as number) + a2 * power;
+    s1[i] = (s1[i] as number) + a3 * power;
+    s2[i] = (s2[i] as number) + a4 * power;
+    s3[i] = (s3[i] as number) + pair2 * previous;
+    s4[i] = (s4[i] as number) + zy * power;
+    s5[i] = (s5[i] as number) + zzyy * power;
+    s6[i] = (s6[i] as number) + pairZ * previous;
+    previous = power;
+    power *= l0;
+  }
+}

@@ -1,0 +1,110 @@
+/**
+ * The attention rows' softmax moments for Gaussian logits (gaussianSoftmaxRows in src/numeric/softmax.ts) against
+ * checks from outside its method: the two-key row, which is a sigmoid of one N(0, 2s²) variable and so a one-dimensional
+ * Gauss–Hermite integral (Golub & Welsch 1969 nodes, src/numeric/quadrature.ts); Stein's identity for the weighted
+ * logit; the existing E[p²] quadrature; and a seeded Monte Carlo of softmax rows.
+ */
+import { describe, expect, it } from "vitest";
+import { createRandom, gaussianExpectation, gaussianSoftmaxMoments, gaussianSoftmaxRows } from "../../src/numeric/index.js";
+
+const sigmoid = (x: number): number => 1 / (1 + Math.exp(-x));
+
+/** Seeded Monte Carlo of E[S], E[S + S² − 2Σp³], E[(Σ p z)²]/s² over `samples` rows of n keys, with standard errors. */
+function monteCarlo(variance: number, n: number, samples: number, seed: number) {
+  const random = createRandom(seed);
+  const s = Math.sqrt(variance);
+  const z = new Float64Array(n);
+  const acc = { S: [0, 0], C: [0, 0], T: [0, 0] };
+  const add = (a: number[], x: number) => {
+    a[0] = (a[0] as number) + x;
+    a[1] = (a[1] as number) + x * x;
+  };
+  for (let r = 0; r < samples; r++) {
+    let top = -Infinity;
+    for (let j = 0; j < n; j++) {
+      z[j] = s * random.normal();
+      top = Math.max(top, z[j] as number);
+    }
+    let sum = 0;
+    for (let j = 0; j < n; j++) sum += Math.exp((z[j] as number) - top);
+    let S = 0;
+    let cube = 0;
+    let m = 0;
+    for (let j = 0; j < n; j++) {
+      const p = Math.exp((z[j] as number) - top) / sum;
+      S += p * p;
+      cube += p * p * p;
+      m += p * (z[j] as number);
+    }
+    add(acc.S, S);
+    add(acc.C, S + S * S - 2 * cube);
+    add(acc.T, (m * m) / variance);
+  }
+  const stat = (a: number[]) => {
+    const mean = (a[0] as number) / samples;
+    return { mean, error: Math.sqrt(Math.max((a[1] as number) / samples - mean * mean, 0) / samples) };
+  };
+  return { S: stat(acc.S), C: stat(acc.C), T: stat(acc.T) };
+}
+
+describe("gaussianSoftmaxRows", () => {
+  it("a row of one key: S = 1, nothing left by the Jacobian, the weighted logit is the logit (softmax definition)", () => {
+    const [row] = gaussianSoftmaxRows(2, 1);
+    expect(row!.sumSquares).toBeCloseTo(1, 10);
+    expect(row!.centred).toBeCloseTo(0, 10);
+    expect(row!.tilt).toBeCloseTo(1, 8);
+  });
+
+  it("two keys: p = sigmoid(w), w ~ N(0, 2s²), z = c ± w/2 with c ~ N(0, s²/2) apart from w (Gauss–Hermite, 96 nodes: 1e-6, its accuracy for a sigmoid at q = 8; a larger q needs more nodes)", () => {
+    for (const variance of [0.25, 1, 4]) {
+      const row = gaussianSoftmaxRows(variance, 2)[1]!;
+      const q = 2 * variance;
+      // S = p² + (1 − p)², Σp³ = p³ + (1 − p)³, and (Σ p z)² = (c + w(p − ½))² with E[c²] = s²/2 (own algebra)
+      const S = gaussianExpectation((w) => sigmoid(w) ** 2 + sigmoid(-w) ** 2, q);
+      const centred = gaussianExpectation((w) => {
+        const p = sigmoid(w);
+        const s2 = p * p + (1 - p) * (1 - p);
+        return s2 + s2 * s2 - 2 * (p ** 3 + (1 - p) ** 3);
+      }, q);
+      const tilt = (variance / 2 + gaussianExpectation((w) => (w * (sigmoid(w) - 0.5)) ** 2, q)) / variance;
+      expect(row.sumSquares, `S at s² = ${variance}`).toBeCloseTo(S, 6);
+      expect(row.centred, `centred at s² = ${variance}`).toBeCloseTo(centred, 6);
+      expect(row.tilt, `tilt at s² = ${variance}`).toBeCloseTo(tilt, 6);
+    }
+  });
+
+  it("Stein's lemma: E[Σ_j p_j z_j] = s²·Σ_j E[∂p_j/∂z_j] = s²·(1 − E[S]) (Stein 1981, Lemma 1)", () => {
+    for (const [variance, n] of [[0.5, 16], [1, 128], [9, 64], [40, 32]] as const) {
+      const row = gaussianSoftmaxRows(variance, n)[n - 1]!;
+      expect(Math.abs(row.tiltMean - (1 - row.sumSquares)), `s² = ${variance}, n = ${n}`).toBeLessThan(1e-7);
+    }
+  });
+
+  it("every row length agrees with n·E[p²] of gaussianSoftmaxMoments, an independent quadrature per n", () => {
+    const rows = gaussianSoftmaxRows(3, 40);
+    for (const n of [1, 2, 7, 40]) expect(rows[n - 1]!.sumSquares / (n * gaussianSoftmaxMoments(3, n).second)).toBeCloseTo(1, 9);
+  });
+
+  it("a seeded Monte Carlo of 20,000 rows agrees within 4 standard errors, spread and concentrated", () => {
+    for (const [variance, n, seed] of [[1, 32, 11], [16, 32, 12], [4, 128, 13]] as const) {
+      const row = gaussianSoftmaxRows(variance, n)[n - 1]!;
+      const mc = monteCarlo(variance, n, 20_000, seed);
+      expect(Math.abs(row.sumSquares - mc.S.mean), `S at s² = ${variance}, n = ${n}`).toBeLessThan(4 * mc.S.error);
+      expect(Math.abs(row.centred - mc.C.mean), `centred at s² = ${variance}, n = ${n}`).toBeLessThan(4 * mc.C.error);
+      expect(Math.abs(row.tilt - mc.T.mean), `tilt at s² = ${variance}, n = ${n}`).toBeLessThan(4 * mc.T.error);
+    }
+  });
+
+  it("the Jacobian's share falls below the even-row bound S·(1 − 1/n) as rows concentrate (Cauchy–Schwarz: Σp³ ≥ S²)", () => {
+    const spread = gaussianSoftmaxRows(0.01, 64)[63]!;
+    const peaked = gaussianSoftmaxRows(16, 64)[63]!;
+    expect(spread.centred / (spread.sumSquares * (1 - 1 / 64))).toBeGreaterThan(0.98);
+    expect(peaked.centred / (peaked.sumSquares * (1 - 1 / 64))).toBeLessThan(0.3);
+  });
+
+  it("returns nothing for a negative or non-finite variance or no keys", () => {
+    expect(gaussianSoftmaxRows(-1, 4)).toEqual([]);
+    expect(gaussianSoftmaxRows(Number.NaN, 4)).toEqual([]);
+    expect(gaussianSoftmaxRows(1, 0)).toEqual([]);
+  });
+});
