@@ -58,11 +58,14 @@ describe("attention over correlated positions", () => {
   const layer = layerOf(spec, "mix");
 
   for (const rho of [0, 0.3, 1]) {
-    test(`ρ = ${rho}: E[o²] = E[v²]·(Σp² + ρ(1 − Σp²)), the weighted mean of equicorrelated values`, () => {
+    test(`ρ = ${rho}: E[o²] = E[v²]·(Σp² + ρ(1 − Σp²) + (1 − ρ)(τ − Σp²)/D), the weighted mean of equicorrelated values plus the query's tilt`, () => {
       const result = attentionRule.forward(context(4), layer, signal(1, rho), {});
       const value = result.stash.value.q;
-      const sumSquares = attentionRowSums(P, false, result.stash.query.q * result.stash.key.q * 8 * (1 / 8)).sumSquares;
-      expect(result.stash.heads.q / value).toBeCloseTo(sumSquares + rho * (1 - sumSquares), 12);
+      const rows = attentionRowSums(P, false, result.stash.query.q * result.stash.key.q * 8 * (1 / 8));
+      const sumSquares = rows.sumSquares;
+      // the tilt along one of the input's 16 directions (own algebra, src/ops/attention/analytic.ts rowTiltExcess)
+      expect(rows.tiltExcess).toBeGreaterThan(0);
+      expect(result.stash.heads.q / value).toBeCloseTo(sumSquares + rho * (1 - sumSquares) + ((1 - rho) * rows.tiltExcess) / 16, 12);
       // the formula is the quadratic form Σ_i Σ_j p_i p_j C_ij with C_ij = ρ + (1 − ρ)·[i = j] for any weights summing to 1
       const weights = Array.from({ length: P }, (_, i) => Math.exp(Math.sin(3 * i)));
       const total = weights.reduce((a, b) => a + b, 0);

@@ -4,9 +4,11 @@
  *   logits s = q·k·c with c = 1/√d (scaling "query" or "logits") or 1 ("none"): Var[s] = d·E[q²]·E[k²]·c²,
  *     so unit q and k give variance d unscaled and 1 scaled (Vaswani et al. 2017, §3.2.1 footnote 4);
  *   probabilities p = softmax over the n keys of a row, log-normal: E[p²] ≈ min(e^Var[s]/n², 1/n);
- *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) for values whose positions are
+ *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²) + (1 − ρ)·(τ − Σ_j p_j²)/D) for values whose positions are
  *     correlated by ρ: E[v²]/P for uniform attention over P independent keys, E[v²]·H_P/P under a causal mask (H_P the
  *     harmonic number: row i attends to i keys), and no shrinking at all for ρ = 1 (rank collapse, Dong et al. 2021);
+ *     the softmax weighs keys by how far their input lies along the query's direction, so along that one of the
+ *     input's D directions the average keeps τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + Σp² for spread rows) instead of Σp²;
  *   output = o·W_o (H·d → D).
  * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²]·(1 − ρ_v): it removes
  * the part of the values all positions share. The query and key gradients carry Σ_j p_j², so they are small while
@@ -31,6 +33,7 @@ import {
   sumLogVar,
   weightOf,
 } from "../common.js";
+import { gaussianSoftmaxRows } from "../../numeric/softmax.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -47,7 +50,8 @@ import type {
 
 const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q²]·E[k²]";
 const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^Var[s]/n², 1/n) (derived; SCIENCE.md §2.10)";
-const AVERAGE_SOURCE = "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice)";
+const AVERAGE_SOURCE =
+  "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice), plus the query's tilt (own algebra)";
 const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";
 
 /**
@@ -79,6 +83,38 @@ interface RowSums {
   keys: number;
   /** spread of log2(1/n) over unmasked elements (different row lengths under a causal mask) */
   rowLog2Variance: number;
+  /**
+   * mean over rows of E[(Σ_j p_j z_j)²]/s² − E[Σ_j p_j²] for the row's logits z (gaussianSoftmaxRows): how much more of
+   * the keys' input the average keeps along the direction the query picks out than along any other (headsTilt)
+   */
+  tiltExcess: number;
+}
+
+const tiltCache = new Map<string, number>();
+
+/**
+ * The mean over rows of τ − S (RowSums.tiltExcess) for P positions, full or causal, at logit variance s2; memoised.
+ * Own algebra: a row's logits are z_j = a·x_j with a = Aᵀx_i (A = c·W_qᵀW_k), so the softmax tilts the keys' inputs
+ * toward a: along a the weighted mean Σ_j p_j·x_j keeps E[x²]·τ, τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + S for spread rows,
+ * by Stein's lemma), along the D − 1 other directions E[x²]·S as for independent keys.
+ */
+function rowTiltExcess(positions: number, causal: boolean, s2: number): number {
+  if (positions < 1 || !(s2 >= 0) || !Number.isFinite(s2)) return 0;
+  const key = `${positions}|${causal}|${s2}`;
+  const hit = tiltCache.get(key);
+  if (hit !== undefined) return hit;
+  const rows = gaussianSoftmaxRows(s2, positions);
+  let excess = 0;
+  if (causal) {
+    for (const row of rows) excess += row.tilt - row.sumSquares;
+    excess /= positions;
+  } else {
+    const row = rows[positions - 1];
+    excess = row === undefined ? 0 : row.tilt - row.sumSquares;
+  }
+  if (tiltCache.size > 1024) tiltCache.clear();
+  tiltCache.set(key, excess);
+  return excess;
 }
 
 
@@ -158,7 +194,14 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   let result: RowSums;
   if (!causal) {
     const perRow = Math.min(spread / positions, 1);
-    result = { sumSquares: perRow, centredSquares: perRow * (1 - 1 / positions), elementSecond: perRow / positions, keys: positions, rowLog2Variance: 0 };
+    result = {
+      sumSquares: perRow,
+      centredSquares: perRow * (1 - 1 / positions),
+      elementSecond: perRow / positions,
+      keys: positions,
+      rowLog2Variance: 0,
+      tiltExcess: rowTiltExcess(positions, false, s2),
+    };
   } else {
     // row i (1-based) attends to i keys: Σ_j p² = min(e^s2/i, 1)
     const full = Math.min(Math.floor(spread), positions); // rows short enough to be (near) one-hot
@@ -175,6 +218,7 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
       elementSecond: total / unmasked,
       keys: unmasked / positions,
       rowLog2Variance,
+      tiltExcess: rowTiltExcess(positions, true, s2),
     };
   }
   return result;
@@ -187,6 +231,8 @@ export interface AttentionStash {
   key: Signal;
   value: Signal;
   heads: Signal;
+  /** fan_in·var_w of the value projection: the heads are W_v times the attention-weighted inputs */
+  valueGain: number;
   rows: RowSums;
   /** c² where s = c·(q·k) */
   scale2: number;
@@ -243,7 +289,9 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // averaging keeps what all positions of a sample share and shrinks the rest by Σ_j p_j²
     const valueShared = value.signal.shared ?? 0;
     const valuePositionShared = Math.max(positionCorrelationOf(value.signal) * value.signal.q, valueShared);
-    const headsQ = positionAverage(value.signal.q, valuePositionShared, rows.sumSquares);
+    // the query's tilt: along the direction a row's logits read from the keys' input, the average keeps τ instead of S
+    // of the part positions do not share, one direction of the input's D (own algebra, rowTiltExcess)
+    const headsQ = positionAverage(value.signal.q, valuePositionShared, rows.sumSquares) + ((value.signal.q - valuePositionShared) * rows.tiltExcess) / Math.max(D, 1);
     const heads: Signal = {
       q: headsQ,
       shared: valueShared,
@@ -272,7 +320,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       const headFactor = factor(
         averageRatio,
         () =>
-          `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"} and positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)}`,
+          `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) + (1 − ρ)·(τ − Σ_j p_j²)/D = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}, positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)} and the query's tilt τ − Σ_j p_j² = ${fmt(rows.tiltExcess)} over D = ${D} inputs`,
         AVERAGE_SOURCE,
       );
       const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
@@ -367,7 +415,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       role: "activation",
       inner: inner_,
       hazards,
-      stash: { input, query: query.signal, key: key.signal, value: value.signal, heads, rows, scale2, headWidth: d },
+      stash: { input, query: query.signal, key: key.signal, value: value.signal, heads, valueGain: value.gain, rows, scale2, headWidth: d },
     };
   },
 
@@ -537,14 +585,23 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const queryMap = ctx.variance(wq) * wq.fanOut;
     input.shared = valueMap * valueSamplePair + queryMap * querySamplePair;
     input.crossCorrelation = inputQ > 0 ? (valueMap * valueCrossPair + queryMap * queryCrossPair) / inputQ : 0;
+    // The value and key weight gradients sum over keys j terms whose gradient depends on the key's own input x_j through
+    // p_ij; regrouped by rows they are sums of independent per-row terms (own algebra): Σ_j δv_j·x_jᵀ = Σ_i δo_i·x̄_iᵀ with
+    // x̄_i = Σ_j p_ij·x_j (the heads before W_v), and Σ_j δk_j·x_jᵀ = c·Σ_i q_i·ξ_iᵀ with ξ_i = Σ_j δs_ij·x_j, whose
+    // second moment c²·E[ξ²] = E[δq²]/(fan_in·var_w of W_k) since δq_i = c·W_k·ξ_i
+    const gainV = stash.valueGain > 0 ? stash.valueGain : 1;
+    const averagedInput: Signal = { ...stash.heads, q: stash.heads.q / gainV, shared: (stash.heads.shared ?? 0) / gainV };
+    const keyMap = ctx.variance(wk) * wk.fanIn;
+    const keyRows: Gradient = { ...queryGradient, q: keyMap > 0 ? queryQ / keyMap : 0 };
+    if (queryGradient.shared !== undefined && keyMap > 0) keyRows.shared = queryGradient.shared / keyMap;
     return {
       input,
       factors: ledger?.input ?? NO_FACTORS,
       inner: innerGradients,
       weightGradients: [
         wg("query", stash.input, queryGradient, stash.input.logVar + heads.logVar),
-        wg("key", stash.input, keyGradient, stash.input.logVar + heads.logVar),
-        wg("value", stash.input, valueGradient, stash.input.logVar + heads.logVar),
+        wg("key", stash.query, keyRows, stash.input.logVar + heads.logVar),
+        wg("value", averagedInput, heads, stash.input.logVar + heads.logVar),
         wg("output", stash.heads, output, stash.heads.logVar + output.logVar),
       ],
     };
