@@ -242,6 +242,13 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
+  const loss = shown.find((t) => t.countsScaledBy !== undefined && t.countsScaledBy !== 1);
+  if (loss !== undefined) {
+    lines.push(
+      `  ${loss.id}: the shares are of the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)}), ` +
+        `the value check judges for loss overflow; the magnitudes are the loss's own.`,
+    );
+  }
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));
   if (result.steps > 0) lines.push("", ...stepLines(result));
   lines.push("", "Assumptions:");
@@ -332,6 +339,7 @@ export function renderSimulationJson(report: SimulationReport): string {
         layer: t.layer,
         role: t.role,
         slot: t.slot,
+        ...(t.countsScaledBy !== undefined ? { countsScaledBy: t.countsScaledBy } : {}),
         measured: t.median,
         ...(t.after !== undefined ? { afterSteps: t.after } : {}),
         ...(r !== undefined

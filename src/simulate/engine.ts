@@ -39,6 +39,8 @@ interface TensorMeta {
   role: TensorRole;
   slot: PlanSlot;
   shape: number[];
+  /** the factor the format counts are taken at (MeasuredTensor.countsScaledBy) */
+  countsScaledBy?: number;
 }
 
 /** Everything that stays fixed over a run: the graph, the formats and how to round. */
@@ -86,8 +88,14 @@ class Recorder {
   measure(meta: TensorMeta, data: Float64Array, excluded?: Uint8Array): void {
     const format = this.setup.formats[meta.slot];
     const values = selectElements(data, excluded);
-    const scales = storageScales(values, format, this.setup.plan.scaling);
-    this.stats.set(meta.id, { meta, stats: measureTensor(values, format, roundOptionsFor(this.setup.roundOptions, format), scales) });
+    const options = roundOptionsFor(this.setup.roundOptions, format);
+    const stats = measureTensor(values, format, options, storageScales(values, format, this.setup.plan.scaling));
+    if (meta.countsScaledBy !== undefined) {
+      // what storing is judged on: the values times the factor (the loss times the loss scale), their magnitudes kept
+      const stored = values.map((v) => v * meta.countsScaledBy!);
+      stats.counts = measureTensor(stored, format, options, storageScales(stored, format, this.setup.plan.scaling)).counts;
+    }
+    this.stats.set(meta.id, { meta, stats });
   }
 
   round(slot: PlanSlot, data: Float64Array): void {
@@ -291,7 +299,9 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
   }
   for (let i = 0; i < gradient.length; i++) gradient[i] = gradient[i]! * factor;
   if (recorder.active) {
-    recorder.measure({ id: "loss/loss", layer: "loss", role: "loss", slot: "activations", shape: [1] }, Float64Array.of(value));
+    // the loss is judged as check's loss-value rule judges it: times the loss scale, in the activation format
+    // (src/risk/hazards.ts lossValue); its magnitudes stay the loss's own, which the prediction gives
+    recorder.measure({ id: "loss/loss", layer: "loss", role: "loss", slot: "activations", shape: [1], countsScaledBy: setup.lossScale }, Float64Array.of(value));
     const meta = { layer: last.name, role: "activation-gradient" as const, slot: "gradients" as const, shape: lastShape };
     if (targetMask !== undefined) {
       // the analytic seed reports the wrong-class elements and the right-class elements as two tensors
@@ -573,6 +583,7 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
   const tensors: MeasuredTensor[] = [];
   for (const [id, entry] of perTensor) {
     const t: MeasuredTensor = { id, layer: entry.meta.layer, role: entry.meta.role, slot: entry.meta.slot, shape: entry.meta.shape, median: medianStats(entry.draws), draws: entry.draws };
+    if (entry.meta.countsScaledBy !== undefined) t.countsScaledBy = entry.meta.countsScaledBy;
     if (entry.after.length > 0) t.after = medianStats(entry.after);
     tensors.push(t);
   }

@@ -111,6 +111,11 @@ export interface MeasuredTensor {
   role: TensorRole;
   slot: PlanSlot;
   shape: number[];
+  /**
+   * the loss only: its format counts are of the loss times this factor (the loss scale), the value check's loss-value
+   * rule judges stored in the activation format; its magnitudes (rms, max, quantiles) are of the loss itself
+   */
+  countsScaledBy?: number;
   /** field-wise median over draws */
   median: TensorStats;
   /** one entry per draw, in seed order */

@@ -1,0 +1,85 @@
+import { describe, expect, it } from "vitest";
+import { check } from "../../src/check.js";
+import { simulationExitCode } from "../../src/cli/simulate.js";
+import { runSimulation } from "../../src/simulate/index.js";
+import { parseSpec, type NetworkSpec } from "../../src/spec/index.js";
+
+function spec(text: string): NetworkSpec {
+  const parsed = parseSpec(text, "loss-value.yaml");
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => `${i.line}:${i.column} ${i.message}`).join("; "));
+  return parsed.spec;
+}
+
+// a summed cross-entropy over `batch` examples of 10 classes: about batch · ln 10 at the start (a uniform guess costs
+// ln(classes) per example, common practice): 147 for 64 examples, 589 for 256
+const summed = (activations: string, lossScale: string, batch = 64, scaling = "") => `name: summed-loss
+input: { features: 16, scale: 1.0 }
+training:
+  batch: ${batch}
+  loss: { kind: cross-entropy, classes: 10, reduction: sum }
+  optimizer: { kind: sgd, learning-rate: { peak: 0.1, end: 0.1 }, warmup-steps: 2 }
+precision:
+  name: plan
+  activations: ${activations}
+  weights: binary32
+  gradients: binary32
+  optimizer-states: binary32
+  master-weights: none
+  accumulate: binary32
+  loss-scale: ${lossScale}${scaling}
+layers:
+  - { type: dense, width: 16, init: he-normal }
+  - relu
+  - { type: dense, name: classes, width: 10, init: { kind: normal, std: 0.01 } }
+`;
+
+function lossRow(s: NetworkSpec) {
+  const result = runSimulation(s, { round: false });
+  const row = result.tensors.find((t) => t.id === "loss/loss");
+  if (row === undefined) throw new Error("no loss row");
+  return { result, row, loss: result.initialLoss[0] as number };
+}
+
+function checkFlagsLossValue(s: NetworkSpec): boolean {
+  return check(s).formats.some((f) => f.findings.some((x) => x.kind === "loss-value-overflow"));
+}
+
+describe("simulate judges the loss value as check does: the loss times the loss scale", () => {
+  it("a summed loss that overflows binary16 only once scaled is counted as an overflow, as check flags it", () => {
+    const s = spec(summed("binary16", "1024"));
+    const { result, row, loss } = lossRow(s);
+    // the loss itself fits binary16; 1024 times it does not (65504, IEEE 754-2019 Table 3.5)
+    expect(loss).toBeLessThan(65504);
+    expect(1024 * loss).toBeGreaterThan(65504);
+    expect(checkFlagsLossValue(s)).toBe(true);
+    expect(row.median.counts.overflowed + row.median.counts.saturated + row.median.counts.nonFinite).toBe(1);
+    expect(simulationExitCode(result)).toBe(1);
+    // the magnitudes stay those of the loss itself, compared with its prediction; the shares say what they were taken at
+    expect(row.median.rms).toBeCloseTo(loss, 12);
+    expect(row.countsScaledBy).toBe(1024);
+  });
+
+  // without scale factors: with them a value of its own is scaled into the range whatever its size
+  it("a summed loss past e4m3's range that a scale below 1 brings inside is not counted, as check does not flag it", () => {
+    const s = spec(summed("e4m3", "0.25", 256, "\n  scaling: none"));
+    const { result, row, loss } = lossRow(s);
+    // e4m3's largest finite is 448 (OCP 8-bit spec): the loss passes it, a quarter of it does not
+    expect(loss).toBeGreaterThan(448);
+    expect(0.25 * loss).toBeLessThan(448);
+    expect(checkFlagsLossValue(s)).toBe(false);
+    expect(row.median.counts.overflowed + row.median.counts.saturated + row.median.counts.nonFinite).toBe(0);
+    expect(result.tensors.filter((t) => t.id !== "loss/loss").every((t) => t.median.counts.overflowed + t.median.counts.saturated === 0)).toBe(true);
+  });
+});
+
+describe("simulate's report of the scaled loss", () => {
+  it("says in text and JSON that the loss's shares are of the scaled loss", async () => {
+    const { renderSimulationJson, renderSimulationText } = await import("../../src/cli/simulate.js");
+    const s = spec(summed("binary16", "1024"));
+    const report = { result: runSimulation(s, { round: false }) };
+    const text = renderSimulationText(report);
+    expect(text).toMatch(/loss\/loss: the shares are of the loss times the loss scale 2\^10 \(/);
+    const json = JSON.parse(renderSimulationJson(report)) as { tensors: { id: string; countsScaledBy?: number }[] };
+    expect(json.tensors.find((t) => t.id === "loss/loss")?.countsScaledBy).toBe(1024);
+  });
+});
