@@ -1,6 +1,6 @@
 import { stat } from "node:fs/promises";
 import type { OverflowMode } from "../formats/index.js";
-import { castTarget, expandPaths, scanExitCode, scanFiles, type ScanIssue, type ScanResult } from "../measure/index.js";
+import { castTarget, expandPaths, issueLine, scanExitCode, scanFiles, type ScanResult } from "../measure/index.js";
 import { renderScanCsv, renderScanJson, renderScanTable } from "../report/scan.js";
 import { raiseExitCode, UserError } from "./errors.js";
 import { stdoutStyle } from "./terminal.js";
@@ -76,8 +76,5 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   raiseExitCode(scanExitCode(result));
 }
 
-/** One error on one line: file, tensor, byte offset, what is wrong. */
-export function issueLine(issue: ScanIssue): string {
-  const tensor = issue.tensor !== undefined ? `tensor ${JSON.stringify(issue.tensor)}, ` : "";
-  return `${issue.file}: ${tensor}byte ${issue.byteOffset}: ${issue.message}`;
-}
+// one error on one line: file, tensor, byte offset (where one points at something), what is wrong
+export { issueLine };

@@ -204,12 +204,12 @@ export function calibrateGraph(graph: Graph, data: WeightFileData, names: Readon
       const tied = usedBy !== undefined && rule === "names";
       if (tensor && usedBy !== undefined && !tied) {
         rejected = { ...sizes(tensor, w), reason: "used", usedBy };
-        issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `already used for ${usedBy}; not used again for ${id}` });
+        issues.push({ file: tensor.file, tensor: tensor.name, message: `already used for ${usedBy}; not used again for ${id}` });
         tensor = undefined;
       }
       if (tensor && tensor.elements !== w.elements) {
         rejected = { ...sizes(tensor, w), reason: "elements" };
-        issues.push({ file: tensor.file, tensor: tensor.name, byteOffset: 0, message: `${elementsDetail(id, rejected)}; not used` });
+        issues.push({ file: tensor.file, tensor: tensor.name, message: `${elementsDetail(id, rejected)}; not used` });
         tensor = undefined;
       }
       if (!tensor) {

@@ -7,6 +7,7 @@ import { dirname, isAbsolute, join } from "node:path";
 import type { MeasuredSpec } from "../spec/types.js";
 import { readWeightFiles, type WeightFileData } from "./calibrate.js";
 import { parseRecordedStatistics, type RecordedStatistic } from "./statistics.js";
+import { issueLine } from "./types.js";
 
 /** Recorded-statistics files larger than this are refused (a statistics file is a few rows per tensor). */
 export const MAX_STATISTICS_BYTES = 100 * 1024 * 1024;
@@ -26,10 +27,7 @@ export async function loadMeasurements(measured: MeasuredSpec, specSource: strin
   const out: Measurements = { problems: [] };
   if (measured.weights.length > 0) {
     out.weights = await readWeightFiles(measured.weights, specSource);
-    for (const issue of out.weights.issues) {
-      const tensor = issue.tensor !== undefined ? `tensor ${JSON.stringify(issue.tensor)}, ` : "";
-      out.problems.push(`${issue.file}: ${tensor}byte ${issue.byteOffset}: ${issue.message}`);
-    }
+    for (const issue of out.weights.issues) out.problems.push(issueLine(issue));
   }
   if (measured.statistics !== undefined) {
     const base = specSource === "<memory>" ? "." : dirname(specSource);

@@ -43,7 +43,7 @@ export async function expandPaths(args: readonly string[]): Promise<{ paths: str
   const issues: ScanIssue[] = [];
   for (const arg of args) {
     const matches = isPattern(arg) ? await expand(arg) : [arg];
-    if (matches.length === 0) issues.push({ file: arg, byteOffset: 0, message: "no file matches this pattern" });
+    if (matches.length === 0) issues.push({ file: arg, message: "no file matches this pattern" });
     for (const match of matches) {
       if (!seen.has(match)) {
         seen.add(match);

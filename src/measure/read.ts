@@ -20,13 +20,17 @@ export interface OpenTensorFile {
   handle: FileHandle;
 }
 
-/** Open `path` read-only and validate its header: safetensors, or .npy when it starts with the .npy magic. */
+/**
+ * Open `path` read-only and validate its header. The content decides the kind: .npy when the file starts with NumPy's
+ * magic, else safetensors; a file named .npy that has neither the magic nor a safetensors start is refused as not a
+ * .npy array (its safetensors errors would describe a format the user never meant).
+ */
 export async function openTensorFile(path: string): Promise<{ ok: true; file: OpenTensorFile } | { ok: false; issue: ScanIssue }> {
   let handle: FileHandle;
   try {
     handle = await open(path, "r");
   } catch (error) {
-    return { ok: false, issue: { file: path, byteOffset: 0, message: `cannot open: ${describeFsError(error)}` } };
+    return { ok: false, issue: { file: path, message: `cannot open: ${describeFsError(error)}` } };
   }
   try {
     const stat = await handle.stat();
@@ -34,6 +38,10 @@ export async function openTensorFile(path: string): Promise<{ ok: true; file: Op
     const size = stat.size;
     const first = await readExactly(handle, 0, Math.min(12, size));
     const isNpy = first.length >= 6 && NPY_MAGIC.every((b, i) => first[i] === b);
+    if (!isNpy && /\.npy$/i.test(path) && !looksLikeSafetensors(first, size)) {
+      await handle.close();
+      return { ok: false, issue: { file: path, message: notNpyMessage(first) } };
+    }
     const parsed = isNpy ? await readNpyLayout(handle, path, first, size) : await readSafetensorsLayout(handle, path, first, size);
     if (!parsed.ok) {
       await handle.close();
@@ -43,11 +51,26 @@ export async function openTensorFile(path: string): Promise<{ ok: true; file: Op
   } catch (error) {
     await handle.close().catch(() => {});
     const message = error instanceof NotAFile ? "not a regular file" : `cannot read: ${describeFsError(error)}`;
-    return { ok: false, issue: { file: path, byteOffset: 0, message } };
+    return { ok: false, issue: { file: path, message } };
   }
 }
 
 class NotAFile extends Error {}
+
+// a safetensors file starts with its header length (8 bytes, little-endian) and the JSON header's "{" (whitespace may
+// come first): the format's public description
+function looksLikeSafetensors(first: Uint8Array, size: number): boolean {
+  if (first.length < 9) return false;
+  const length = new DataView(first.buffer, first.byteOffset, 8).getBigUint64(0, true);
+  const start = first[8]!;
+  return length >= 2n && 8n + length <= BigInt(size) && (start === 0x7b || start === 0x20 || start === 0x09 || start === 0x0a || start === 0x0d);
+}
+
+function notNpyMessage(first: Uint8Array): string {
+  const shown = [...first.subarray(0, 6)].map((b) => b.toString(16).padStart(2, "0")).join(" ");
+  const start = first.length === 0 ? "it is empty" : `it starts with ${shown}`;
+  return `not a .npy array: it does not start with NumPy's magic "\\x93NUMPY" (${start}), nor is it a safetensors file`;
+}
 
 async function readSafetensorsLayout(handle: FileHandle, path: string, first: Uint8Array, size: number) {
   const prefix = parseSafetensorsPrefix(path, first, size);

@@ -23,7 +23,7 @@ export type SafetensorsPrefix = { ok: true; headerLength: number } | { ok: false
  */
 export function parseSafetensorsPrefix(file: string, first: Uint8Array, fileSize: number): SafetensorsPrefix {
   if (fileSize < 8 || first.length < 8) {
-    return fail(file, 0, `file has ${fileSize} bytes, fewer than the 8-byte header length a safetensors file starts with`);
+    return fail(file, undefined, `file has ${fileSize} bytes, fewer than the 8-byte header length a safetensors file starts with`);
   }
   const view = new DataView(first.buffer, first.byteOffset, 8);
   const length = view.getBigUint64(0, true);
@@ -156,8 +156,9 @@ export function parseSafetensorsHeader(file: string, header: Uint8Array, fileSiz
   return { ok: true, layout };
 }
 
-function fail(file: string, byteOffset: number, message: string): { ok: false; issue: ScanIssue } {
-  return { ok: false, issue: { file, byteOffset, message } };
+// no offset where none points at something (a file too short to hold the header length)
+function fail(file: string, byteOffset: number | undefined, message: string): { ok: false; issue: ScanIssue } {
+  return { ok: false, issue: byteOffset === undefined ? { file, message } : { file, byteOffset, message } };
 }
 
 function isCount(value: unknown): value is number {

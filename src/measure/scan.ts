@@ -150,7 +150,7 @@ export async function scanFile(path: string, options: ScanOptions): Promise<File
     result.issues.push(...(await streamTensors(opened.file, sink, options.onProgress)));
   } catch (error) {
     const message = error instanceof Error ? error.message : String(error);
-    result.issues.push({ file: path, byteOffset: 0, message: `cannot read: ${message}` });
+    result.issues.push({ file: path, message: `cannot read: ${message}` });
   } finally {
     await handle.close();
   }

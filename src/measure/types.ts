@@ -45,12 +45,13 @@ export interface SkippedTensor {
 
 /**
  * A problem with a file or one of its tensors, as a value (never thrown).
- * `byteOffset` is the absolute position in the file where the problem was found.
+ * `byteOffset` is the absolute position in the file where the problem was found, absent when no position means
+ * anything (the file cannot be opened, is too short, is not of a kind read here; a tensor refused as a whole).
  */
 export interface ScanIssue {
   file: string;
   tensor?: string;
-  byteOffset: number;
+  byteOffset?: number;
   message: string;
 }
 
@@ -66,4 +67,11 @@ export interface TensorFileLayout {
   issues: ScanIssue[];
   /** free-form string metadata from a safetensors header (`__metadata__`) */
   metadata?: Record<string, string>;
+}
+
+/** One issue on one line: file, then the tensor and the byte offset when there are, then what is wrong. */
+export function issueLine(issue: ScanIssue): string {
+  const tensor = issue.tensor !== undefined ? `tensor ${JSON.stringify(issue.tensor)}, ` : "";
+  const at = issue.byteOffset !== undefined ? `byte ${issue.byteOffset}: ` : "";
+  return `${issue.file}: ${tensor}${at}${issue.message}`;
 }

@@ -65,7 +65,7 @@ describe("check --vary with unreadable measured data", () => {
   const path = writeSpec("broken.yaml", text);
   // the position of the section's value in the file as written above (the loader's locate convention)
   const where = `${path}:${lineOf(text, "  weights: [broken")}:3: measured: `;
-  const problem = /broken\.safetensors: byte 0: file has 3 bytes, fewer than the 8-byte header length/;
+  const problem = /broken\.safetensors: file has 3 bytes, fewer than the 8-byte header length/;
 
   it("plain check: exit code 2 and the problem positioned at the spec's measured section", () => {
     const run = runCli(["check", path]);

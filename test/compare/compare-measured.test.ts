@@ -71,7 +71,7 @@ describe("compare with measured weights", () => {
     const run = runCli(["compare", "--json", broken]);
     expect(run.status).toBe(2);
     expect(run.stderr).toBe(plain.stderr);
-    expect(run.stderr).toMatch(/broken\.yaml:\d+:\d+: measured: .*broken\.safetensors: byte 0: /);
+    expect(run.stderr).toMatch(/broken\.yaml:\d+:\d+: measured: .*broken\.safetensors: file has 3 bytes/);
     expect(ownOutcome(run.stdout).fromSpec).toBe(true);
   });
 });

@@ -52,7 +52,7 @@ describe("hostile safetensors files", () => {
   it("a file shorter than 8 bytes", async () => {
     const path = files.write("tiny.safetensors", Uint8Array.of(1, 2, 3));
     const { issues } = await issuesOf(path);
-    expect(issues).toEqual([{ file: path, byteOffset: 0, message: expect.stringMatching(/fewer than the 8-byte header length/) }]);
+    expect(issues).toEqual([{ file: path, message: expect.stringMatching(/fewer than the 8-byte header length/) }]);
   });
 
   it("offsets out of range", async () => {
@@ -136,7 +136,7 @@ describe("hostile safetensors files", () => {
 
   it("a missing file, and a folder, are issues", async () => {
     const missing = files.dir + "/nothing-here.safetensors";
-    expect((await issuesOf(missing)).issues).toEqual([{ file: missing, byteOffset: 0, message: "cannot open: no such file" }]);
+    expect((await issuesOf(missing)).issues).toEqual([{ file: missing, message: "cannot open: no such file" }]);
     const opened = await openTensorFile(files.dir);
     expect(opened.ok).toBe(false);
   });
