@@ -51,6 +51,12 @@ export interface Signal {
    */
   positionCorrelation?: number;
   /**
+   * images only: the part of q that is the square of each channel's mean over batch and pixels (what a batch norm
+   * removes), averaged over channels. Below `shared` when the pixels' batch means differ (a zero-padded convolution
+   * gives its border pixels fewer taps of a nonzero-mean input). Absent: `shared`. Set by conv2d only
+   */
+  channelShared?: number;
+  /**
    * share of features that are exactly zero at every one of the batch × positions terms of a step (a ReLU unit off
    * for the whole batch): rows and columns of a weight gradient that are exactly zero
    */

@@ -1,28 +1,164 @@
 /**
  * 2-D convolution: a dense map per output pixel with fan-in in-channels × k² (SCIENCE.md §2.1: "conv is the same
  * with fan-in k²c"). Backward, each input pixel feeds out-channels × (output pixels per input pixel) × k² outputs,
- * which is out-channels × k² at stride 1.
+ * which is out-channels × k² at stride 1. Zero padding leaves a border pixel fewer taps inside the image, both ways.
  */
 import { sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { fmt, weightOf } from "../common.js";
+import type { Conv2dLayer } from "../../spec/types.js";
+import { crossCorrelationOf, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import { type DenseStash, linearBackward, linearForward } from "../dense/analytic.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import { conv2dGeometry } from "./kernel.js";
+
+const PADDING_SOURCE = "zero padding: a border pixel sums only the taps inside the image (own algebra, the conv's definition)";
+
+/** Per image axis, for each kernel tap, the number of output pixels at which that tap reads inside the image. */
+export interface TapCounts {
+  rows: number[];
+  columns: number[];
+  outRows: number;
+  outColumns: number;
+  kernel: number;
+}
+
+export function tapCounts(layer: GraphLayer): TapCounts | undefined {
+  const spec = layer.spec as Conv2dLayer;
+  if (layer.input.layout !== "image") return undefined;
+  const g = conv2dGeometry(1, layer.input.channels, layer.input.height, layer.input.width, spec.channels, spec.kernel, spec.stride, spec.padding);
+  const axis = (size: number, out: number, before: number): number[] => {
+    const counts: number[] = [];
+    for (let t = 0; t < g.kernel; t++) {
+      let c = 0;
+      for (let o = 0; o < out; o++) {
+        const i = o * g.stride - before + t;
+        if (i >= 0 && i < size) c++;
+      }
+      counts.push(c);
+    }
+    return counts;
+  };
+  return { rows: axis(g.height, g.outHeight, g.padTop), columns: axis(g.width, g.outWidth, g.padLeft), outRows: g.outHeight, outColumns: g.outWidth, kernel: g.kernel };
+}
+
+/**
+ * Share of an output pixel's k² taps that read inside the image, averaged over output pixels (`inside`, 1 without
+ * padding), and (1/k²)·Σ_k (c_k/P)² with c_k the output pixels at which tap k is inside (`channelMean`): a channel's
+ * mean over the batch and pixels is Σ_k w_k·(c_k/P)·m for an input of mean m, whose square averages to
+ * fan_in·var_w·m² times it (own algebra: independent weights).
+ */
+export function paddingShares(t: TapCounts): { inside: number; channelMean: number } {
+  const axis = (counts: number[], out: number): { inside: number; channelMean: number } => {
+    let sum = 0;
+    let squares = 0;
+    for (const c of counts) {
+      sum += c;
+      squares += (c / out) * (c / out);
+    }
+    return { inside: sum / (out * t.kernel), channelMean: squares / t.kernel };
+  };
+  const r = axis(t.rows, t.outRows);
+  const c = axis(t.columns, t.outColumns);
+  return { inside: r.inside * c.inside, channelMean: r.channelMean * c.channelMean };
+}
 
 export const conv2dRule: AnalyticRule<DenseStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<DenseStash> {
-    return linearForward(ctx, layer, input, "conv2d");
+    const result = linearForward(ctx, layer, input, "conv2d");
+    const taps = tapCounts(layer);
+    if (taps === undefined) return result;
+    const { inside, channelMean } = paddingShares(taps);
+    const out = result.output;
+    const w = weightOf(layer, "weight");
+    const biasWeight = maybeWeight(layer, "bias");
+    const bias = biasWeight === undefined ? 0 : ctx.variance(biasWeight);
+    // E[y_p²] = var_w·Σ_{taps inside at p} E[x²]: the weights' part of q, its per-pixel mean² and what two pixels share
+    // scale by the share of taps inside (own algebra: independent weights, zero padding)
+    const weighted = out.q - bias;
+    const sharedWeighted = Math.max(sharedOf(out) - bias, 0);
+    const before = out.q;
+    out.q = weighted * inside + bias;
+    out.shared = sharedWeighted * inside + bias;
+    // the channel's mean over batch and pixels weighs tap k by the share of pixels it reaches (own algebra, see paddingShares)
+    const channelIn = input.channelShared ?? sharedOf(input);
+    out.channelShared = Math.min(ctx.variance(w) * w.fanIn * channelIn * channelMean + bias, out.shared);
+    // two pixels share the input's fluctuation part through the taps inside, and the per-pixel means as the pairs of an
+    // average over all P² pixel pairs (the channel's mean²) less its P diagonal ones: (P·channel − per-pixel)/(P − 1)
+    const pixels = taps.outRows * taps.outColumns;
+    const gain = ctx.variance(w) * w.fanIn;
+    const fluctuation = gain * inside * Math.max(positionCorrelationOf(input) * input.q - sharedOf(input), 0);
+    const means = pixels > 1 ? Math.max((pixels * (out.channelShared - bias) - (out.shared - bias)) / (pixels - 1), 0) : out.shared - bias;
+    if (out.q > 0) out.positionCorrelation = Math.min((fluctuation + means + bias) / out.q, 1);
+    if (inside < 1 && ctx.ledger) {
+      return { ...result, factors: [...result.factors, factor(before > 0 ? out.q / before : 0, () => `conv2d: share of taps inside the padded image = ${fmt(inside)}`, PADDING_SOURCE)] };
+    }
+    return result;
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: DenseStash, output: Gradient): BackwardResult {
     const w = weightOf(layer, "weight");
     const inChannels = w.shape[1] ?? 1;
-    // connections per input element = (output elements × in-channels × k²) / input elements
-    const connections = (sampleElements(layer.output) * w.fanIn) / sampleElements(layer.input);
+    const taps = tapCounts(layer);
+    const inside = taps === undefined ? 1 : paddingShares(taps).inside;
+    // connections per input element = (output elements × in-channels × k² × share of taps inside) / input elements
+    const connections = (sampleElements(layer.output) * w.fanIn * inside) / sampleElements(layer.input);
     const variance = ctx.variance(w);
     const gain = variance * connections;
-    return linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
+    const result = linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
+    if (taps === undefined) return result;
+    const leak = borderLeak(ctx.batch, taps, output);
+    if (!(leak > 0)) return result;
+    if (result.input !== undefined) leakChannelSum(ctx.batch, variance * (w.shape[0] ?? 1) * leak, result.input, layer);
+    // the weight gradient of tap k sums x·δ over V_k only: an input of mean m adds m²·E[(Σ_{V_k} δ)²] beyond the whole
+    // sum the per-pixel pairs count (own algebra, as borderLeak), averaged over the k² taps
+    const weightGradient = result.weightGradients[0];
+    if (weightGradient !== undefined && weightGradient.weight === "weight") {
+      weightGradient.q += (sharedOf(stash.input) * leak) / (taps.kernel * taps.kernel);
+    }
+    return result;
   },
 };
+
+/** E[(Σ_{n, p∈V} δ)²] over N samples and v pixels of a gradient with pair correlations ρ_p, ρ_s, ρ_c (common practice). */
+function subsetSum(batch: number, v: number, q: number, rp: number, rs: number, rc: number): number {
+  return batch * v * q * (1 + (v - 1) * rp + (batch - 1) * (rs + (v - 1) * rc));
+}
+
+/**
+ * Σ_k of what the output pixels V_k at which tap k reads inside sum of the gradient beyond their share (v_k/P)² of the
+ * whole sum, over the batch: without padding every V_k is all pixels and this is zero; with padding the border taps
+ * sum a part of the output gradient, which a zero total (below a batch norm) does not cancel (own algebra).
+ */
+function borderLeak(batch: number, taps: TapCounts, output: Gradient): number {
+  const pixels = taps.outRows * taps.outColumns;
+  const rp = positionCorrelationOf(output);
+  const rs = sampleCorrelationOf(output);
+  const rc = crossCorrelationOf(output);
+  const whole = subsetSum(batch, pixels, output.q, rp, rs, rc);
+  let leak = 0;
+  for (const r of taps.rows) {
+    for (const c of taps.columns) {
+      const v = r * c;
+      if (v > 0 && v < pixels) leak += Math.max(subsetSum(batch, v, output.q, rp, rs, rc) - (v / pixels) * (v / pixels) * whole, 0);
+    }
+  }
+  return leak;
+}
+
+/**
+ * The input gradient's sum over batch and pixels, per channel, is Σ_k w_k·Σ_{n, p∈V_k} δ_p: it gains var_w·C_out·
+ * borderLeak beyond what the per-pixel rule passes on, which sets the input's correlation between samples at two
+ * pixels (own algebra: independent weights).
+ */
+function leakChannelSum(batch: number, added: number, input: Gradient, layer: GraphLayer): void {
+  const pixelsIn = layer.input.layout === "image" ? layer.input.height * layer.input.width : 1;
+  if (batch < 2 || pixelsIn < 2 || !(input.q > 0)) return;
+  const ps = positionCorrelationOf(input);
+  const ss = sampleCorrelationOf(input);
+  const cs = crossCorrelationOf(input);
+  const total = subsetSum(batch, pixelsIn, input.q, ps, ss, cs) + added;
+  const between = (total / (batch * pixelsIn * input.q) - 1 - (pixelsIn - 1) * ps) / (batch - 1);
+  input.crossCorrelation = Math.min(Math.max((between - ss) / (pixelsIn - 1), -1), 1);
+}
 
 /** The backward wording, made only with a ledger and holding only its numbers. */
 function conv2dBackwardRule(connections: number, variance: number, gain: number): Text {

@@ -59,7 +59,8 @@ export const normRule: AnalyticRule<NormStash> = {
     const centred = layer.family !== "rms-norm";
     // layer norm centres each sample over its features; batch norm centres each feature over the batch, removing the
     // shared part (the per-feature batch mean²), which a ReLU's positive mean puts there (Yang et al. 2019)
-    const removed = layer.family === "batch-norm" ? sharedOf(input) : centred ? input.mean * input.mean : 0;
+    // (over batch and pixels: a padded convolution's border pixels keep batch means of their own, which it leaves)
+    const removed = layer.family === "batch-norm" ? (input.channelShared ?? sharedOf(input)) : centred ? input.mean * input.mean : 0;
     const variance = Math.max(input.q - removed, 0);
     const denominator = variance + spec.epsilon;
     const normalisedSecond = denominator > 0 ? variance / denominator : 0;
