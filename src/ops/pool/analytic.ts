@@ -146,6 +146,16 @@ export const poolRule: AnalyticRule<null> = {
     if (output.crossCorrelation !== undefined && pixelsIn > 1) {
       input.crossCorrelation = (sampleCorrelationOf(output) * (1 - share) + (pixelsOut - 1) * output.crossCorrelation) / (pixelsIn - 1);
     }
+    // overlapping windows pick one pixel when the maximum of their union lies in the overlap (chance overlap/union for
+    // independent inputs): that pixel gets g + g', adding 2·E[g·g'] per such pair to the summed squares; sums over a
+    // sample's pixels are unchanged, so the pair correlations shrink to keep them (own algebra: arg-max routing)
+    const collisions = overlapCollisions(layer);
+    const growth = pixelsOut > 0 ? 1 + (collisions * positionCorrelationOf(output)) / pixelsOut : 1;
+    if (growth > 1) {
+      input.q *= growth;
+      if (pixelsIn > 1) input.positionCorrelation = ((1 + (pixelsIn - 1) * positionCorrelation) / growth - 1) / (pixelsIn - 1);
+      if (input.crossCorrelation !== undefined) input.crossCorrelation /= growth;
+    }
     input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
     input.windowMaximum = k;
     return {
@@ -156,3 +166,32 @@ export const poolRule: AnalyticRule<null> = {
     };
   },
 };
+
+/**
+ * Σ over ordered pairs of distinct output windows of the chance that both pick the same input pixel: overlap/union of
+ * their pixels (the union's maximum, for independent inputs, lies in the overlap with that chance). Zero without
+ * overlap (stride ≥ size).
+ */
+export function overlapCollisions(layer: GraphLayer): number {
+  const spec = layer.spec as PoolLayer;
+  const size = spec.size;
+  const stride = spec.stride;
+  if (stride >= size) return 0;
+  const image = layer.output.layout === "image";
+  const rows = image ? (layer.output as { height: number }).height : 1;
+  const columns = image ? (layer.output as { width: number }).width : positionCount(layer.output);
+  const span = (d: number): number => Math.max(size - Math.abs(d) * stride, 0);
+  const reach = Math.ceil(size / stride);
+  let sum = 0;
+  for (let a = image ? -reach : 0; a <= (image ? reach : 0); a++) {
+    for (let b = -reach; b <= reach; b++) {
+      if (a === 0 && b === 0) continue;
+      const overlap = (image ? span(a) : 1) * span(b);
+      if (overlap === 0) continue;
+      const area = image ? size * size : size;
+      const pairs = Math.max(rows - Math.abs(a), 0) * Math.max(columns - Math.abs(b), 0);
+      sum += (pairs * overlap) / (2 * area - overlap);
+    }
+  }
+  return sum;
+}
