@@ -3,7 +3,7 @@
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
 import { check, type MeasuredNetwork } from "./check.js";
-import { getFormat } from "./formats/index.js";
+import { getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import { VERDICT_RANK, worseVerdict, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
@@ -18,8 +18,20 @@ const base = { overflow: "saturate", flushSubnormals: false, scaling: "none" } a
  * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
  * factors (Micikevicius et al. 2022) and a binary32 master copy.
  */
+/** The baseline of the "saved" share: every tensor in binary32, no master copy (the first standard plan). */
+export const ALL_BINARY32_PLAN: PrecisionPlan = {
+  ...base,
+  name: "binary32",
+  activations: "binary32",
+  weights: "binary32",
+  gradients: "binary32",
+  optimizerStates: "binary32",
+  masterWeights: "none",
+  accumulate: "binary32",
+};
+
 export const STANDARD_PLANS: readonly PrecisionPlan[] = [
-  { ...base, name: "binary32", activations: "binary32", weights: "binary32", gradients: "binary32", optimizerStates: "binary32", masterWeights: "none", accumulate: "binary32" },
+  ALL_BINARY32_PLAN,
   { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32" },
   { ...base, name: "bfloat16 with master copy", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", flushSubnormals: true },
   { ...base, name: "bfloat16 only", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "bfloat16", masterWeights: "none", accumulate: "binary32", flushSubnormals: true },
@@ -27,10 +39,14 @@ export const STANDARD_PLANS: readonly PrecisionPlan[] = [
 ];
 
 export interface PlanCost {
-  /** weights + master copy + gradients + optimizer states, per parameter */
+  /** weights + master copy + gradients + optimizer states, per parameter (block scale bytes included) */
   bytesPerParameter: number;
-  /** stored activations, per element */
+  /** stored activations, per element (block scale bytes included) */
   bytesPerActivation: number;
+  /** of bytesPerParameter, the shared scales of per-block 8-bit storage: one E8M0 byte per block of each 8-bit tensor */
+  scaleBytesPerParameter: number;
+  /** of bytesPerActivation, the same for activations */
+  scaleBytesPerActivation: number;
   /** total for the spec's parameters and one step's activations */
   parameterBytes: number;
   activationBytes: number;
@@ -52,14 +68,18 @@ export interface PlanOutcome {
   /** the first thing that breaks (or is at risk), one sentence; null when nothing does */
   firstProblem: string | null;
   cost: PlanCost;
-  /** memory saved against all-binary32, as a share of its bytes (parameters + activations) */
+  /** memory saved against the baseline (`PlanComparison.baseline`, all binary32), as a share of its bytes (parameters + activations) */
   savedShare: number;
+  /** whether the plan stores every tensor as the baseline does (its saved share is 0 by definition) */
+  baseline: boolean;
 }
 
 export interface PlanComparison {
   spec: { name: string; source: string };
   /** best first */
   outcomes: PlanOutcome[];
+  /** what the saved shares are against: every tensor in binary32 with no master copy, whether or not it was compared */
+  baseline: { name: string; plan: PrecisionPlan; bytes: number };
   /** why the ranking is what it is, one sentence each */
   explanation: string[];
   caution: string;
@@ -70,21 +90,43 @@ function statesPerParameter(kind: NetworkSpec["training"]["optimizer"]["kind"]):
   return kind === "adam" || kind === "adamw" ? 2 : kind === "momentum" ? 1 : 0;
 }
 
+/**
+ * What storing a tensor of the plan costs per element, and of that its block scales: with per-block scaling every
+ * MX_BLOCK.size elements of an 8-bit tensor share one 8-bit E8M0 scale (OCP Microscaling v1.0), a byte per block; a
+ * per-tensor scale is one number per tensor, not counted.
+ */
+function elementBytes(plan: PrecisionPlan, name: string): { bytes: number; scale: number } {
+  const format = getFormat(name);
+  const scale = plan.scaling === "block" && format.bits === 8 ? 1 / MX_BLOCK.size : 0;
+  return { bytes: format.bytes + scale, scale };
+}
+
 export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckResult): PlanCost {
-  const bytes = (name: string) => getFormat(name).bytes;
-  const bytesPerParameter =
-    bytes(plan.weights) +
-    (plan.masterWeights === "none" ? 0 : bytes(plan.masterWeights)) +
-    bytes(plan.gradients) +
-    statesPerParameter(spec.training.optimizer.kind) * bytes(plan.optimizerStates);
-  const bytesPerActivation = bytes(plan.activations);
+  const states = statesPerParameter(spec.training.optimizer.kind);
+  const parts = [
+    { count: 1, ...elementBytes(plan, plan.weights) },
+    { count: plan.masterWeights === "none" ? 0 : 1, ...elementBytes(plan, plan.masterWeights === "none" ? plan.weights : plan.masterWeights) },
+    { count: 1, ...elementBytes(plan, plan.gradients) },
+    { count: states, ...elementBytes(plan, plan.optimizerStates) },
+  ];
+  const bytesPerParameter = parts.reduce((sum, p) => sum + p.count * p.bytes, 0);
+  const scaleBytesPerParameter = parts.reduce((sum, p) => sum + p.count * p.scale, 0);
+  const activation = elementBytes(plan, plan.activations);
+  const bytesPerActivation = activation.bytes;
   let parameters = 0;
   let activations = 0;
   for (const t of result.tensors) {
     if (t.role === "weight") parameters += t.start.elements;
     if (t.role === "activation" || t.role === "pre-activation") activations += t.start.elements;
   }
-  return { bytesPerParameter, bytesPerActivation, parameterBytes: parameters * bytesPerParameter, activationBytes: activations * bytesPerActivation };
+  return {
+    bytesPerParameter,
+    bytesPerActivation,
+    scaleBytesPerParameter,
+    scaleBytesPerActivation: activation.scale,
+    parameterBytes: parameters * bytesPerParameter,
+    activationBytes: activations * bytesPerActivation,
+  };
 }
 
 /** Options of {@link comparePlans}. */
@@ -112,8 +154,8 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   const plans =
     options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s)) && !own.some((p) => p.name === s.name)), ...own];
 
-  // every plan stores the same tensors: the all-binary32 bytes, the "saved" column's reference, follow from any
-  // plan's check, whether or not the all-binary32 plan is among those compared (--only-spec-plans)
+  // every plan stores the same tensors: the baseline's bytes, the "saved" column's reference, follow from any plan's
+  // check, whether or not the all-binary32 plan is among those compared (--only-spec-plans)
   let referenceBytes: number | null = null;
   const outcomes = plans.map((plan): PlanOutcome => {
     const planned: NetworkSpec = { ...spec, precision: plan };
@@ -126,7 +168,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
     const verdict = result.verdict;
     const cost = planCost(spec, plan, result);
     if (referenceBytes === null) {
-      const reference = planCost(spec, STANDARD_PLANS[0] as PrecisionPlan, result);
+      const reference = planCost(spec, ALL_BINARY32_PLAN, result);
       referenceBytes = reference.parameterBytes + reference.activationBytes;
     }
     return {
@@ -141,6 +183,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       firstProblem: firstProblem(result, optimizer, answer),
       cost,
       savedShare: 0,
+      baseline: sameStorage(plan, ALL_BINARY32_PLAN),
     };
   });
   for (const o of outcomes) {
@@ -156,10 +199,23 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   return {
     spec: { name: spec.name, source: spec.source },
     outcomes: ranked,
+    baseline: { name: "all binary32", plan: ALL_BINARY32_PLAN, bytes: referenceBytes ?? 0 },
     explanation: explain(ranked),
     caution:
       "These rankings rest on estimates, not guarantees: confirm the chosen plan with a short run of a few hundred steps before a long one.",
   };
+}
+
+// the same formats for every stored tensor: the same memory
+function sameStorage(a: PrecisionPlan, b: PrecisionPlan): boolean {
+  return (
+    a.activations === b.activations &&
+    a.weights === b.weights &&
+    a.gradients === b.gradients &&
+    a.optimizerStates === b.optimizerStates &&
+    a.masterWeights === b.masterWeights &&
+    (a.scaling === b.scaling || ![a.activations, a.weights, a.gradients, a.optimizerStates, a.masterWeights].some((f) => f !== "none" && getFormat(f).bits === 8))
+  );
 }
 
 function samePlan(a: PrecisionPlan, b: PrecisionPlan): boolean {
@@ -213,6 +269,11 @@ function explain(ranked: PlanOutcome[]): string[] {
 }
 
 function costWords(o: PlanOutcome): string {
-  const saved = o.savedShare > 0 ? `, ${(100 * o.savedShare).toFixed(0)}% less memory than binary32` : "";
-  return `${o.cost.bytesPerParameter} bytes per parameter, ${o.cost.bytesPerActivation} per activation element${saved}`;
+  const saved = o.savedShare > 0 ? `, ${(100 * o.savedShare).toFixed(0)}% less memory than all binary32` : "";
+  return `${byteCount(o.cost.bytesPerParameter)} bytes per parameter, ${byteCount(o.cost.bytesPerActivation)} per activation element${saved}`;
+}
+
+/** Bytes per element as the outputs write them: whole, or to two decimals when block scale bytes add a fraction. */
+function byteCount(bytes: number): string {
+  return Number.isInteger(bytes) ? String(bytes) : bytes.toFixed(2);
 }

@@ -13,6 +13,11 @@ export interface CompareTextOptions {
   width?: number;
 }
 
+// bytes per element: whole, or to two decimals when block scale bytes add a fraction (as compare's own sentences)
+function byteCount(bytes: number): string {
+  return Number.isInteger(bytes) ? String(bytes) : bytes.toFixed(2);
+}
+
 /** @example renderCompareText(comparePlans(spec)) // => "headroom compare: wide-classifier ...\n" */
 export function renderCompareText(comparison: PlanComparison, options: CompareTextOptions = {}): string {
   const style = options.style ?? PLAIN;
@@ -25,10 +30,10 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     // told apart as the batch table tells them ("not needed" there too; its "none" for an empty window is "none fits" here):
     // a bare "none" read the same for a plan that needs no scale and one that no static scale fits
     o.lossScale !== null ? formatPowerOfTwo(Math.log2(o.lossScale)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
-    `${o.cost.bytesPerParameter} B`,
-    `${o.cost.bytesPerActivation} B`,
+    `${byteCount(o.cost.bytesPerParameter)} B`,
+    `${byteCount(o.cost.bytesPerActivation)} B`,
     formatBytes(o.cost.parameterBytes + o.cost.activationBytes),
-    o.plan.name === "binary32" ? "—" : formatPercent(o.savedShare),
+    o.baseline ? "—" : formatPercent(o.savedShare),
   ]);
   out += renderTable(
     [
@@ -47,7 +52,9 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
   out += style.role(
     "muted",
     wrap(
-      "per parameter: weights, master copy, gradients and optimizer states; memory: the spec's parameters plus one step's stored activations; saved: against all binary32.",
+      "per parameter: weights, master copy, gradients and optimizer states; memory: the spec's parameters plus one step's stored activations " +
+        "(block-scaled 8-bit tensors also hold one scale byte per 32 elements; a per-tensor scale, one number per tensor, is not counted); " +
+        `saved: against ${comparison.baseline.name} (every tensor in binary32, no master copy: ${formatBytes(comparison.baseline.bytes)}).`,
       width,
       "  ",
       "  ",

@@ -11,5 +11,11 @@ export const register: RegisterCommand = (program) => {
     )
     .option("--only-spec-plans", "compare only the spec's own plans (its precision and plans)")
     .option("--json", "print the whole comparison as JSON")
+    .addHelpText(
+      "after",
+      "\nmemory: the spec's parameters at the bytes per parameter (weights, master copy, gradients, optimizer states) plus one " +
+        "step's stored activations; block-scaled 8-bit tensors add one scale byte per 32 elements (per-tensor scales are " +
+        "not counted). saved: the share saved against all binary32 (every tensor in binary32, no master copy).",
+    )
     .action(lazyAction(() => import("../compare.js").then((m) => m.runCompare)));
 };
