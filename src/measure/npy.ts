@@ -20,9 +20,11 @@ export type NpyPrefix = { ok: true; version: number; prefixLength: number; heade
  * @param first the first min(12, size) bytes of the file
  */
 export function parseNpyPrefix(file: string, first: Uint8Array, fileSize: number): NpyPrefix {
-  if (first.length < 10 || !NPY_MAGIC.every((b, i) => first[i] === b)) {
+  if (first.length < 6 || !NPY_MAGIC.every((b, i) => first[i] === b)) {
     return failure(file, 0, 'not a .npy file: it does not start with the magic "\\x93NUMPY"');
   }
+  // magic, two version bytes and a header length of at least 2 bytes: 10 bytes before any header
+  if (first.length < 10) return failure(file, first.length, `file ends after ${first.length} bytes, inside the .npy prefix (magic, version, header length: 10 bytes)`);
   const major = first[6]!;
   const minor = first[7]!;
   if (major < 1 || major > 3 || minor !== 0) {

@@ -62,3 +62,12 @@ describe("byte offsets only where they point at something", () => {
     expect(measurements.problems).toEqual([`${files.dir}/nowhere.safetensors: cannot open: no such file`]);
   });
 });
+
+describe("a .npy file cut inside its prefix", () => {
+  it("is told as cut where it ends, not as lacking the magic it has", async () => {
+    // NumPy's format description: magic (6 bytes), major and minor version (2), header length (2 in version 1)
+    const path = files.write("cut.npy", Uint8Array.of(0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59, 1, 0));
+    const { issues } = await scanOne(path);
+    expect(issues).toEqual([{ file: path, byteOffset: 8, message: "file ends after 8 bytes, inside the .npy prefix (magic, version, header length: 10 bytes)" }]);
+  });
+});
