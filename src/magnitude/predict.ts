@@ -251,7 +251,9 @@ class Phase {
       let branchResults: BranchResults = NO_BRANCH;
       if (layer.branch !== undefined) {
         const inner = this.forward(layer.branch, signal, current);
-        branchResults = { branchOutput: inner.output, branchResets: inner.resets };
+        const stashes: unknown[] = [];
+        for (let b = 0; b < layer.branch.length; b++) stashes.push(this.stash[(layer.branch[b] as GraphLayer).index]);
+        branchResults = { branchOutput: inner.output, branchResets: inner.resets, branchStashes: stashes };
       }
       const result = ruleFor(layer.family).forward(this.ctx, layer, signal, branchResults);
       this.stash[layer.index] = result.stash;
@@ -262,7 +264,8 @@ class Phase {
       for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
       current = chain(current, layer.name, result.factors, this.build);
       signal = result.output;
-      // two features' covariance is carried through dense layers, activations, layer and RMS norms and dropout only
+      // two features' covariance is carried through dense layers, activations, layer and RMS norms, dropout and residual
+      // blocks only
       if (signal.featureCovariance !== undefined && !CARRIES_COVARIANCE.has(layer.family)) {
         signal = { ...signal };
         delete signal.featureCovariance;
@@ -439,7 +442,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
 }
 
-const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout"]);
+const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
 const CARRIES_CURVATURE: ReadonlySet<string> = new Set([...CARRIES_COVARIANCE, "flatten"]);
 

@@ -65,7 +65,7 @@ export interface Signal {
    * E[Cov(x_i, x_j)²]/q² for two different features of one sample (covariance over the data, the weights fixed): the
    * outputs of a random linear map share its inputs, 1/fan_in of it. The loss's curvature sums E[x xᵀ] into the next
    * weight gradient, whose off-diagonal adds (fan_in − 1) times this. Absent: 0 (carried through dense layers,
-   * pointwise activations, layer and RMS norms and dropout only)
+   * pointwise activations, layer and RMS norms, dropout, and residual blocks whose branch holds only these)
    */
   featureCovariance?: number;
 }
@@ -272,6 +272,8 @@ export interface BranchResults {
   branchGradient?: Gradient;
   /** whether a norm inside the branch resets the scale (the branch output no longer tracks the skip's norm) */
   branchResets?: boolean;
+  /** the forward stash of each branch layer, in order (for a rule that follows the branch's mean Jacobian) */
+  branchStashes?: readonly unknown[];
 }
 
 /** The analytic rules of one layer family. */

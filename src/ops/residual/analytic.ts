@@ -7,7 +7,9 @@
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
-import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar } from "../common.js";
+import type { ActivationStash } from "../activation/analytic.js";
+import type { NormStash } from "../norm/analytic.js";
+import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -15,6 +17,52 @@ const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 
 /** What the residual backward rule needs. */
 export interface ResidualStash {
   input: Signal;
+  /**
+   * the branch's mean Jacobian J̄ = E[∂F/∂x] as a gain, E[‖J̄·v‖²]/E[‖v‖²] (its entries taken as independent and of
+   * mean zero, so J̄'s square sums over a row to this); undefined when the branch holds a layer it cannot follow
+   */
+  meanJacobian: number | undefined;
+  /** features of the skip */
+  width: number;
+}
+
+/**
+ * The gain of a branch's mean Jacobian J̄ = E[∂F/∂x], layer by layer, which Stein's lemma turns into the skip's
+ * covariance with the branch, E[x·Fᵀ] = Cov(x)·J̄ᵀ (Stein 1981, Lemma 1, x Gaussian): a dense layer multiplies it by
+ * fan_in·var_w, an activation by E[φ']², a layer or RMS norm by gain²/(var + ε), dropout by E[mask]/keep = 1. Undefined
+ * for a branch with a layer it cannot follow, or with no random linear map (J̄'s entries would not be of mean zero).
+ */
+function meanJacobianGain(ctx: OpContext, layer: GraphLayer, stashes: readonly unknown[] | undefined): number | undefined {
+  const branch = layer.branch;
+  if (branch === undefined || stashes === undefined || stashes.length !== branch.length || layer.output.layout !== "features") return undefined;
+  let gain = 1;
+  let mixes = false;
+  for (let i = 0; i < branch.length; i++) {
+    const b = branch[i] as GraphLayer;
+    const stash = stashes[i];
+    switch (b.family) {
+      case "dense": {
+        const w = weightOf(b, "weight");
+        gain *= ctx.variance(w) * w.fanIn;
+        mixes = true;
+        break;
+      }
+      case "activation":
+        gain *= (stash as ActivationStash).derivativeMean ** 2;
+        break;
+      case "layer-norm":
+      case "rms-norm": {
+        const norm = stash as NormStash;
+        gain *= norm.denominator > 0 ? norm.gainSquared / norm.denominator : 0;
+        break;
+      }
+      case "dropout":
+        break;
+      default:
+        return undefined;
+    }
+  }
+  return mixes && Number.isFinite(gain) ? gain : undefined;
 }
 
 /** The gradient the branch starts from: α·δ_out, with its ledger factor (worded only with a ledger). */
@@ -53,13 +101,23 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     // what two positions share adds up like the second moments
     if (q > 0) output.positionCorrelation = Math.min((positionCorrelationOf(input) * input.q + positionCorrelationOf(f) * branchQ + 2 * alpha * input.mean * f.mean) / q, 1);
     const ratio = input.q > 0 ? q / input.q : 0;
+    const width = layer.output.layout === "features" ? layer.output.features : 1;
+    const meanJacobian = meanJacobianGain(ctx, layer, branch.branchStashes);
+    if (meanJacobian !== undefined && q > 0) {
+      // Cov(y) = Cov(x) + α·(Cov(x)·J̄ᵀ + J̄·Cov(x)) + α²·Cov(F) (Stein's lemma, as above): the middle terms' entries, of
+      // mean zero, add E[(Cov(x)·J̄ᵀ)_ij²] = q_x²·(1 + (n − 1)·c_x)·ḡ/n each (own algebra, J̄'s entries independent)
+      const skip = (input.featureCovariance ?? 0) * input.q * input.q;
+      const own = input.q * input.q * (1 + (width - 1) * (input.featureCovariance ?? 0));
+      const crossed = (2 * alpha * alpha * own * meanJacobian) / width;
+      output.featureCovariance = (skip + crossed + alpha ** 4 * (f.featureCovariance ?? 0) * f.q * f.q) / (q * q);
+    }
     return {
       output,
       factors: ctx.ledger ? [factor(ratio, () => `residual: 1 + α²·q_branch/q_skip = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
       role: "activation",
       inner: [],
       hazards: [],
-      stash: { input },
+      stash: { input, meanJacobian, width },
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, _stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
@@ -86,3 +144,4 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     };
   },
 };
+
