@@ -32,4 +32,11 @@ describe("the loss's curvature through a residual block", () => {
     expect(d.size).toBe(1);
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
   });
+
+  it("the curvature passes down the skip: M + α·(M·J̄ + J̄ᵀ·M) + the branch's pullback (the weights below 1.33 binades low before)", () => {
+    // with none carried past the block, the layer below lost the aligned part N·M_x·W·E[x xᵀ] of its weight gradient
+    const d = measuredDifferences(PLANNER, "irrigation-planner", /^inp\/weight-gradient$/);
+    expect(d.size).toBe(1);
+    for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
+  });
 });

@@ -10,7 +10,7 @@ import type { ResidualLayer } from "../../spec/types.js";
 import type { ActivationStash } from "../activation/analytic.js";
 import type { NormStash } from "../norm/analytic.js";
 import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar, weightOf } from "../common.js";
-import type { AnalyticRule, BackwardResult, BranchResults, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import type { AnalyticRule, BackwardResult, BranchResults, Curvature, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
 
@@ -120,7 +120,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       stash: { input, meanJacobian, width },
     };
   },
-  backward(ctx: OpContext, layer: GraphLayer, _stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
     const g = branch.branchGradient;
     if (g === undefined) throw new RangeError(`residual ${layer.name}: the branch gradient is missing`);
     const q = output.q + g.q;
@@ -135,6 +135,12 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     if (q > 0 && (output.crossCorrelation !== undefined || g.crossCorrelation !== undefined)) {
       input.crossCorrelation = (crossCorrelationOf(output) * output.q + crossCorrelationOf(g) * g.q) / q;
     }
+    const m = output.curvature;
+    const pulled = g.curvature;
+    // the loss's curvature at the skip's input: (I + α·J)ᵀ·M·(I + α·J) = M + α·(M·J̄ + J̄ᵀ·M) + α²·E[Jᵀ·M·J], the last the
+    // branch's own pullback (its gradient's curvature); only when
+    // the branch carried it down and J̄ is known
+    if (m !== undefined && pulled !== undefined && stash.meanJacobian !== undefined) input.curvature = skipCurvature(m, pulled, (layer.spec as ResidualLayer).multiplier, stash);
     const ratio = output.q > 0 ? q / output.q : 0;
     return {
       input,
@@ -145,3 +151,20 @@ export const residualRule: AnalyticRule<ResidualStash> = {
   },
 };
 
+/**
+ * M_x = M + α·M·J̄ + (α·J̄ᵀ·M + α²·E[Jᵀ·M·J]), the bracket the branch's pullback `pulled`: the diagonals add (J̄'s of
+ * mean zero adds none), E[(M_ii + P_ii)²] and the rows' squares add with 2·E[M_ii]·E[P_ii] for the diagonal they share,
+ * and α·M·J̄ adds α²·R·ḡ over a row, α²·R·ḡ/n on the diagonal (own algebra, J̄'s entries independent of M).
+ */
+function skipCurvature(m: Curvature, pulled: Curvature, alpha: number, stash: ResidualStash): Curvature {
+  const shared = 2 * m.diagonal * pulled.diagonal;
+  const cross = alpha * alpha * m.rowSquares * (stash.meanJacobian ?? 0);
+  const sum: Curvature = {
+    diagonal: m.diagonal + pulled.diagonal,
+    diagonalSquare: m.diagonalSquare + pulled.diagonalSquare + shared + cross / stash.width,
+    rowSquares: m.rowSquares + pulled.rowSquares + shared + cross,
+  };
+  // M·J̄ is not symmetric: no positive semidefinite bound holds for M_x
+  if (m.indefinite === true || pulled.indefinite === true || cross > 0) sum.indefinite = true;
+  return sum;
+}
