@@ -8,7 +8,7 @@ import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
 import { fmt, maybeWeight, textOf } from "../ops/common.js";
-import { residualBranchSeed } from "../ops/residual/analytic.js";
+import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
 import type { NetworkSpec } from "../spec/types.js";
@@ -336,7 +336,7 @@ class Phase {
 
   /** A residual layer's branch, walked backward from its seed: the branch's input gradient for the rule. */
   private branchBackward(layer: GraphLayer, gradient: Gradient, node: LedgerNode | null): BranchResults {
-    const seed = residualBranchSeed(layer, gradient, this.build);
+    const seed = residualBranchSeed(layer, gradient, this.build, this.stash[layer.index] as ResidualStash);
     // (present only with a value: a delete of an absent key is skipped, for speed)
     if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
     if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;

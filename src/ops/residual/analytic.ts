@@ -14,9 +14,11 @@ import type { AnalyticRule, BackwardResult, BranchResults, Curvature, Factor, Fo
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
 
-/** What the residual backward rule needs. */
+/** What the residual backward rule (and the branch's seed) needs. */
 export interface ResidualStash {
   input: Signal;
+  /** E[F²] of the branch output */
+  branchQ: number;
   /**
    * the branch's mean Jacobian J̄ = E[∂F/∂x] as a gain, E[‖J̄·v‖²]/E[‖v‖²] (its entries taken as independent and of
    * mean zero, so J̄'s square sums over a row to this); undefined when the branch holds a layer it cannot follow
@@ -66,7 +68,7 @@ function meanJacobianGain(ctx: OpContext, layer: GraphLayer, stashes: readonly u
 }
 
 /** The gradient the branch starts from: α·δ_out, with its ledger factor (worded only with a ledger). */
-export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: boolean): { gradient: Gradient; factor: Factor } {
+export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: boolean, stash?: ResidualStash): { gradient: Gradient; factor: Factor } {
   const alpha = (layer.spec as ResidualLayer).multiplier;
   const a2 = alpha * alpha;
   const gradient: Gradient = { ...output, q: a2 * output.q };
@@ -74,7 +76,23 @@ export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: 
   // features by α² too, since the branch enters the loss as α·F (∂δ_F/∂F = α²·M) (derived, as Curvature)
   if (output.shared !== undefined) gradient.shared = a2 * output.shared;
   const m = output.curvature;
-  if (m !== undefined) gradient.curvature = { ...m, diagonal: a2 * m.diagonal, diagonalSquare: a2 * a2 * m.diagonalSquare, rowSquares: a2 * a2 * m.rowSquares };
+  if (m !== undefined) {
+    const seed: Curvature = { ...m, diagonal: a2 * m.diagonal, diagonalSquare: a2 * a2 * m.diagonalSquare, rowSquares: a2 * a2 * m.rowSquares };
+    const jacobian = stash?.meanJacobian;
+    if (stash !== undefined && jacobian !== undefined && stash.branchQ > 0) {
+      // δ_F also holds α·M·x of the skip; x's best linear estimate from F is E[x·Fᵀ]·E[F·Fᵀ]⁻¹·F = (q_x/q_F)·J̄ᵀ·F
+      // (Stein's lemma), so M_F gains (α·q_x/q_F)·M·J̄ᵀ: no diagonal mean, squares R·ḡ/n on the diagonal and R·ḡ over a
+      // row, ḡ = n·E[J̄_ij²] (own algebra: linear projection of the skip on the branch output, J̄'s entries independent)
+      const c = (alpha * stash.input.q) / stash.branchQ;
+      const cross = c * c * m.rowSquares * jacobian;
+      seed.diagonalSquare += cross / stash.width;
+      seed.rowSquares += cross;
+      // M·J̄ᵀ is not symmetric: no positive semidefinite bound holds for M_F
+      seed.indefinite = true;
+      delete seed.centred;
+    }
+    gradient.curvature = seed;
+  }
   return {
     gradient,
     factor: factor(alpha * alpha, ledger ? () => `residual branch: multiplier² = ${fmt(alpha * alpha)}` : "", SOURCE),
@@ -117,7 +135,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       role: "activation",
       inner: [],
       hazards: [],
-      stash: { input, meanJacobian, width },
+      stash: { input, branchQ: f.q, meanJacobian, width },
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
@@ -138,7 +156,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const m = output.curvature;
     const pulled = g.curvature;
     // the loss's curvature at the skip's input: (I + α·J)ᵀ·M·(I + α·J) = M + α·(M·J̄ + J̄ᵀ·M) + α²·E[Jᵀ·M·J], the last the
-    // branch's own pullback (its gradient's curvature); only when
+    // branch's own pullback (its gradient's curvature, which also holds J̄ᵀ·M through the seed's skip part); only when
     // the branch carried it down and J̄ is known
     if (m !== undefined && pulled !== undefined && stash.meanJacobian !== undefined) input.curvature = skipCurvature(m, pulled, (layer.spec as ResidualLayer).multiplier, stash);
     const ratio = output.q > 0 ? q / output.q : 0;
