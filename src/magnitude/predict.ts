@@ -455,8 +455,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (layer.family !== "max-pool" && input.windowMaximum !== undefined) delete input.windowMaximum;
   if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
   if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
-  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout and
-  // flattens only (see Curvature)
+  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens
+  // and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
 }
 

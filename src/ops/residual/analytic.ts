@@ -3,7 +3,8 @@
  * means) (Zhang, Dauphin & Ma 2019, Fixup §2); a He-initialised branch doubles q per block without normalisation.
  * Backward, δ_x = δ_out + α·J_Fᵀ·δ_out, so the branch is seeded with α²·E[δ_out²] and the two gradients add.
  * The finite-width spread is not re-accumulated along the skip (Hanin & Rolnick 2018): only the branch's own spread
- * is added, weighted by its share of the sum.
+ * is added, weighted by its share of the sum. The skip and the branch are not independent where the loss's curvature
+ * and feature covariances are concerned: E[x·Fᵀ] = Cov(x)·J̄ᵀ with J̄ the branch's mean Jacobian (Stein's lemma).
  */
 import type { GraphLayer } from "../../graph/types.js";
 import type { ResidualLayer } from "../../spec/types.js";
