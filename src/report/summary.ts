@@ -29,8 +29,6 @@ export const FINDING_WORDS = {
   "second-moment-flushed": { label: "second moment flushed", measure: "share" },
 } as const satisfies Record<FindingKind, { label: string; measure: RiskMeasure }>;
 
-const SEVERITY = { fails: 0, "at-risk": 1 } as const;
-
 // kinds whose number is better when larger (binades of headroom); the others are worse when larger
 const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set<FindingKind>(["little-headroom"]);
 
@@ -41,7 +39,7 @@ const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set<FindingKind>(["little
 export function compareFindings(a: Finding, b: Finding): number {
   const kinds = Object.keys(FINDING_WORDS);
   return (
-    SEVERITY[a.severity] - SEVERITY[b.severity] ||
+    VERDICT_RANK[b.severity] - VERDICT_RANK[a.severity] ||
     (a.source === b.source ? 0 : a.source === "tensor" ? -1 : 1) ||
     kinds.indexOf(a.kind) - kinds.indexOf(b.kind) ||
     (LARGER_IS_BETTER.has(a.kind) ? a.value - b.value : b.value - a.value) ||

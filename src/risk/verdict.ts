@@ -3,6 +3,7 @@
  */
 import { FINDING_INFO } from "./catalogue.js";
 import { worstVerdict } from "./tensor.js";
+import { VERDICT_RANK } from "./verdict-order.js";
 import { FINDING_KINDS, type Finding, type FindingKind, type Verdict } from "./types.js";
 
 /** A verdict and the sentences that explain it, most serious first. */
@@ -12,15 +13,13 @@ export interface Judgement {
   reasons: string[];
 }
 
-const SEVERITY_RANK: Record<Finding["severity"], number> = { fails: 0, "at-risk": 1 };
-
 // kinds whose value is better when larger (binades of headroom); the others are worse when larger
 const LARGER_IS_BETTER: ReadonlySet<FindingKind> = new Set(["little-headroom"]);
 
 // on a tie of values the subject first in text order names the group, as the lists of findings worst first
 // (report/summary.ts compareFindings: Markdown, HTML, batch rows) put it, so every output names the same tensor
 function worse(a: Finding, b: Finding): Finding {
-  if (a.severity !== b.severity) return SEVERITY_RANK[a.severity] < SEVERITY_RANK[b.severity] ? a : b;
+  if (a.severity !== b.severity) return VERDICT_RANK[a.severity] > VERDICT_RANK[b.severity] ? a : b;
   if (a.value === b.value) return b.subject < a.subject ? b : a;
   const aWorse = LARGER_IS_BETTER.has(a.kind) ? a.value < b.value : a.value > b.value;
   return aWorse ? a : b;
@@ -46,7 +45,7 @@ export function judge(findings: readonly Finding[]): Judgement {
   }
   const ordered = [...groups.entries()].sort(
     ([kindA, a], [kindB, b]) =>
-      SEVERITY_RANK[a.severity] - SEVERITY_RANK[b.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
+      VERDICT_RANK[b.severity] - VERDICT_RANK[a.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
   );
   const reasons = ordered.map(([kind, group]) => {
     const others = group.subjects.size - 1;
