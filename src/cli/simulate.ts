@@ -154,9 +154,13 @@ export function parseShrink(text: string): Partial<ShrinkFactors> {
   return out;
 }
 
-/** 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation; 0 otherwise. */
+/**
+ * 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation; 0 otherwise. The loss
+ * is not stored (the run keeps it in binary64): its counts say what keeping the scaled loss in the activation format
+ * would do, which check too calls at risk only (src/risk/hazards.ts lossValue), so they list it but set no exit code.
+ */
 export function simulationExitCode(result: SimulationResult): number {
-  const bad = result.tensors.some((t) => t.median.counts.overflowed + t.median.counts.saturated + t.median.counts.nonFinite > 0);
+  const bad = result.tensors.some((t) => t.countsScaledBy === undefined && t.median.counts.overflowed + t.median.counts.saturated + t.median.counts.nonFinite > 0);
   return bad ? EXIT.findings : EXIT.ok;
 }
 
@@ -245,8 +249,9 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   const loss = shown.find((t) => t.countsScaledBy !== undefined && t.countsScaledBy !== 1);
   if (loss !== undefined) {
     lines.push(
-      `  ${loss.id}: the shares are of the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)}), ` +
-        `the value check judges for loss overflow; the magnitudes are the loss's own.`,
+      `  ${loss.id}: the shares are of the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)}) ` +
+        `kept in the activation format, as check judges the loss value (at risk there); the magnitudes are the loss's own. ` +
+        `The run keeps the loss in binary64, so it sets no exit code.`,
     );
   }
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));

@@ -25,7 +25,8 @@ export const register: RegisterCommand = (program) => {
     .option("--html <file>", "also write a page with each tensor's measured band drawn over its predicted band")
     .addHelpText(
       "after",
-      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input.",
+      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input. " +
+        "The loss is listed with the shares of the loss times the loss scale, as check judges it, but is not stored and sets no exit code.",
     )
     .action(lazyAction(() => import("../simulate.js").then((m) => m.runSimulate)));
 };
