@@ -250,7 +250,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   if (loss !== undefined) {
     lines.push(
       `  ${loss.id}: the shares are of the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)}) ` +
-        `kept in the activation format, as check judges the loss value (at risk there); the magnitudes are the loss's own. ` +
+        `kept in the activation format, as check judges the loss value; the magnitudes are the loss's own. ` +
         `The run keeps the loss in binary64, so it sets no exit code.`,
     );
   }
