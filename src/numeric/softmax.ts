@@ -445,7 +445,11 @@ export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxR
     return rows;
   }
   const s = Math.sqrt(variance);
-  const { k, spacing, n: nz, weights, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, maxKeys, NEG_INF);
+  // the cut of E[p²] in the module comment (K = e^(s²/2)/e against 1/n²), its K raised by 1 + s² + s⁴ for the
+  // logit-weighted transforms (E[z²·e^z] = (s² + s⁴)·e^(s²/2)) and y³, y⁴ (y^m·e^(−y) ≤ y·((m − 1)/e)^(m−1))
+  const h = U_STEP / (1 - Math.exp(-U_STEP));
+  const cut = Math.log((MOMENT_CUT * Math.E) / (h * 2 * (1 + variance + variance * variance))) - 2 * Math.log(maxKeys) - variance / 2;
+  const { k, spacing, n: nz, weights, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, maxKeys, cut);
   // z = s·x at the Gaussian nodes (x on a grid of step h = spacing/s centred on 0)
   const wz = new Float64Array(nz);
   const wzz = new Float64Array(nz);

@@ -5,6 +5,7 @@ import { maxOfNormals } from "../../src/ops/pool/analytic.js";
 import { attentionRowSums } from "../../src/ops/attention/analytic.js";
 import { allBelowZero, crossMoments } from "../../src/ops/activation/analytic.js";
 import { expectedMaxAbsProduct, expectedMaxNormal } from "../../src/magnitude/profile.js";
+import { gaussianSoftmaxMoments } from "../../src/numeric/softmax.js";
 
 describe("activationMoments at q = 1 (SCIENCE.md §2.9 table, checks 20–24)", () => {
   const table = [
@@ -121,13 +122,14 @@ describe("order statistics and tails (SCIENCE.md §4)", () => {
     expect((1 - erf(4)) / 1.541725790028002e-8).toBeCloseTo(1, 6);
   });
 
-  test("attention rows: uniform attention gives Σp² = 1/P; causal gives H_P/P", () => {
+  test("attention rows: uniform attention gives Σp² = 1/P; causal gives H_P/P; concentrated rows the exact E[Σp²]", () => {
     expect(attentionRowSums(100, false, 0).sumSquares).toBeCloseTo(0.01, 15);
     let h = 0;
     for (let i = 1; i <= 1000; i++) h += 1 / i;
     expect(attentionRowSums(1000, true, 0).sumSquares).toBeCloseTo(h / 1000, 12);
-    // one-hot attention when e^Var[s] exceeds the row length
-    expect(attentionRowSums(16, false, 10).sumSquares).toBe(1);
+    // concentrated rows: E[Σp²] of Gaussian logits by the softmax quadrature (src/numeric/softmax.ts), one-hot in the limit
+    expect(attentionRowSums(16, false, 10).sumSquares).toBeCloseTo(16 * gaussianSoftmaxMoments(10, 16).second, 12);
+    expect(attentionRowSums(16, false, 1e4).sumSquares).toBe(1);
   });
 });
 

@@ -3,15 +3,16 @@
  *   q, k, v = x·W (each D → H·d): E[q²] = fan_in·var_w·E[x²] (Poole et al. 2016);
  *   logits s = q·k·c with c = 1/√d (scaling "query" or "logits") or 1 ("none"): Var[s] = d·E[q²]·E[k²]·c²,
  *     so unit q and k give variance d unscaled and 1 scaled (Vaswani et al. 2017, §3.2.1 footnote 4);
- *   probabilities p = softmax over the n keys of a row, log-normal: E[p²] ≈ min(e^Var[s]/n², 1/n);
+ *   probabilities p = softmax over the n keys of a row of independent Gaussian logits: E[p²] by quadrature
+ *     (≈ e^Var[s]/n² while rows are spread, → 1/n as they concentrate; src/numeric/softmax.ts);
  *   head outputs o = Σ_j p_j v_j: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²) + (1 − ρ)·(τ − Σ_j p_j²)/D) for values whose positions are
  *     correlated by ρ: E[v²]/P for uniform attention over P independent keys, E[v²]·H_P/P under a causal mask (H_P the
  *     harmonic number: row i attends to i keys), and no shrinking at all for ρ = 1 (rank collapse, Dong et al. 2021);
  *     the softmax weighs keys by how far their input lies along the query's direction, so along that one of the
  *     input's D directions the average keeps τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + Σp² for spread rows) instead of Σp²;
  *   output = o·W_o (H·d → D).
- * Backward runs the same chain in reverse; the softmax Jacobian gives E[δ_s²] ≈ E[p²]·E[δ_p²]·(1 − ρ_v): it removes
- * the part of the values all positions share. The query and key gradients carry Σ_j p_j², so they are small while
+ * Backward runs the same chain in reverse; the softmax Jacobian gives a row Σ_j E[δ_s²] = E[S + S² − 2Σp³]·E[δ_p²]·(1 − ρ_v):
+ * it removes the part of the values all positions share, and nearly everything of a concentrated row. The query and key gradients carry Σ_j p_j², so they are small while
  * attention is spread out; the query gradient sums δ_s·k over keys, where the keys' shared part cancels too (1 − ρ_k),
  * and pairs of keys add 1/D through the weights they share (D the input width).
  */
@@ -33,7 +34,7 @@ import {
   sumLogVar,
   weightOf,
 } from "../common.js";
-import { gaussianSoftmaxRows } from "../../numeric/softmax.js";
+import { gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -49,7 +50,7 @@ import type {
 } from "../types.js";
 
 const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q²]·E[k²]";
-const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^Var[s]/n², 1/n) (derived; SCIENCE.md §2.10)";
+const SOFTMAX_SOURCE = "softmax of N(0, Var[s]) logits, E[Σ_j p_j²] by quadrature (Cressie et al. 1981 Laplace transform; src/numeric/softmax.ts)";
 const AVERAGE_SOURCE =
   "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice), plus the query's tilt (own algebra)";
 const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";
@@ -67,14 +68,9 @@ interface RowSums {
   /** mean over rows of Σ_j E[p_ij²] */
   sumSquares: number;
   /**
-   * mean over rows of Σ_j E[p_ij²]·(1 − 1/n_i), n_i the row's keys: what the softmax Jacobian leaves of the values'
-   * deviations, E[(v_j − Σ_l p_il·v_l)²] = (1 − 1/n)·E[ṽ²] for a row spread over its n keys (variance of a deviation
-   * from a mean of n; common practice). Nothing is left of a row of one key. Exact only for an even row: any row keeps
-   * (S + S² − 2·Σp³)·E[ṽ²] ≤ S·(1 − S) ≤ S·(1 − 1/n), S = Σ_j p_j² (Σp³ ≥ S² by Cauchy–Schwarz), so it is an upper bound
-   * that loosens as attention concentrates. Checked near even rows only (test/ops/cross-sample-correlation.test.ts);
-   * a float64 Monte Carlo of softmax rows with N(0, s²) logits (own check, 4,000 rows) keeps 0.72 of Σp² at 16 keys,
-   * s² = 1, and 0.50 / 0.30 at 64 keys, s² = 4 / 9, against 0.94 / 0.98 here: the end of the horizon's concentrated
-   * rows are held high, as their Σp² capped at 1 already is
+   * mean over rows of E[S + S² − 2·Σ_j p_j³], S = Σ_j p_j² (gaussianSoftmaxRows): what the softmax Jacobian leaves of
+   * key-wise independent gradients, E[Σ_j p_j²·(g_j − Σ_l p_l·g_l)²] per unit E[g²] (own algebra). S·(1 − 1/n) for an
+   * even row, far less for a concentrated one (Σp³ ≥ S² by Cauchy–Schwarz); nothing for a row of one key
    */
   centredSquares: number;
   /** E[p²] over the unmasked elements */
@@ -88,45 +84,6 @@ interface RowSums {
    * the keys' input the average keeps along the direction the query picks out than along any other (headsTilt)
    */
   tiltExcess: number;
-}
-
-const tiltCache = new Map<string, number>();
-
-/**
- * The mean over rows of τ − S (RowSums.tiltExcess) for P positions, full or causal, at logit variance s2; memoised.
- * Own algebra: a row's logits are z_j = a·x_j with a = Aᵀx_i (A = c·W_qᵀW_k), so the softmax tilts the keys' inputs
- * toward a: along a the weighted mean Σ_j p_j·x_j keeps E[x²]·τ, τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + S for spread rows,
- * by Stein's lemma), along the D − 1 other directions E[x²]·S as for independent keys.
- */
-function rowTiltExcess(positions: number, causal: boolean, s2: number): number {
-  if (positions < 1 || !(s2 >= 0) || !Number.isFinite(s2)) return 0;
-  const key = `${positions}|${causal}|${s2}`;
-  const hit = tiltCache.get(key);
-  if (hit !== undefined) return hit;
-  const rows = gaussianSoftmaxRows(s2, positions);
-  let excess = 0;
-  if (causal) {
-    for (const row of rows) excess += row.tilt - row.sumSquares;
-    excess /= positions;
-  } else {
-    const row = rows[positions - 1];
-    excess = row === undefined ? 0 : row.tilt - row.sumSquares;
-  }
-  if (tiltCache.size > 1024) tiltCache.clear();
-  tiltCache.set(key, excess);
-  return excess;
-}
-
-
-/** Σ_(i ≤ n) 1/i²: a loop below 64, else π²/6 − 1/n + 1/(2n²) − 1/(6n³) (Euler–Maclaurin). */
-function harmonicSquares(n: number): number {
-  if (n <= 0) return 0;
-  if (n < 64) {
-    let h = 0;
-    for (let i = 1; i <= n; i++) h += 1 / (i * i);
-    return h;
-  }
-  return (Math.PI * Math.PI) / 6 - 1 / n + 1 / (2 * n * n) - 1 / (6 * n * n * n);
 }
 
 function harmonic(n: number): number {
@@ -188,39 +145,55 @@ function causalColumnSquares(positions: number): number {
   return mean;
 }
 
-/** Row sums of E[p²] for P positions at logit variance s2, full or causal. */
+const rowCache = new Map<string, RowSums>();
+
+/**
+ * Row sums for P positions at logit variance s2, full or causal (row i of a causal matrix attends to its first i keys),
+ * from the exact moments of softmax rows of independent N(0, s2) logits (gaussianSoftmaxRows); memoised.
+ * tiltExcess, own algebra: a row's logits are z_j = a·x_j with a = Aᵀx_i (A = c·W_qᵀW_k), so the softmax tilts the
+ * keys' inputs toward a: along a the weighted mean Σ_j p_j·x_j keeps E[x²]·τ, τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + S for
+ * spread rows, by Stein's lemma), along the D − 1 other directions E[x²]·S as for independent keys.
+ */
 export function attentionRowSums(positions: number, causal: boolean, s2: number): RowSums {
-  const spread = Math.exp(s2);
+  const key = `${positions}|${causal}|${s2}`;
+  const hit = rowCache.get(key);
+  if (hit !== undefined) return hit;
+  // +∞ (an overflowed logit variance) is the one-hot limit
+  const rows = gaussianSoftmaxRows(Math.min(s2, Number.MAX_VALUE), positions);
   let result: RowSums;
-  if (!causal) {
-    const perRow = Math.min(spread / positions, 1);
+  if (rows.length < positions || positions < 1) {
+    result = { sumSquares: NaN, centredSquares: NaN, elementSecond: NaN, keys: positions, rowLog2Variance: 0, tiltExcess: NaN };
+  } else if (!causal) {
+    const row = rows[positions - 1] as SoftmaxRowMoments;
     result = {
-      sumSquares: perRow,
-      centredSquares: perRow * (1 - 1 / positions),
-      elementSecond: perRow / positions,
+      sumSquares: row.sumSquares,
+      centredSquares: row.centred,
+      elementSecond: row.sumSquares / positions,
       keys: positions,
       rowLog2Variance: 0,
-      tiltExcess: rowTiltExcess(positions, false, s2),
+      tiltExcess: row.tilt - row.sumSquares,
     };
   } else {
-    // row i (1-based) attends to i keys: Σ_j p² = min(e^s2/i, 1)
-    const full = Math.min(Math.floor(spread), positions); // rows short enough to be (near) one-hot
-    // every row one-hot: no remainder (e^s2 may be +∞ in float64, and ∞·0 would give NaN)
-    const total = full === positions ? positions : full + spread * (harmonic(positions) - harmonic(full));
-    // the same with each row i weighted by 1 − 1/i: Σ_(i ≤ full) (1 − 1/i) + e^s2·Σ_(i > full) (1/i − 1/i²)
-    const centred =
-      full - harmonic(full) + (full === positions ? 0 : spread * (harmonic(positions) - harmonic(full) - (harmonicSquares(positions) - harmonicSquares(full))));
+    let total = 0;
+    let centred = 0;
+    let tilt = 0;
+    for (const row of rows) {
+      total += row.sumSquares;
+      centred += row.centred;
+      tilt += row.tilt - row.sumSquares;
+    }
     const unmasked = (positions * (positions + 1)) / 2;
-    const rowLog2Variance = causalRowLog2Variance(positions);
     result = {
       sumSquares: total / positions,
       centredSquares: centred / positions,
       elementSecond: total / unmasked,
       keys: unmasked / positions,
-      rowLog2Variance,
-      tiltExcess: rowTiltExcess(positions, true, s2),
+      rowLog2Variance: causalRowLog2Variance(positions),
+      tiltExcess: tilt / positions,
     };
   }
+  if (rowCache.size > 1024) rowCache.clear();
+  rowCache.set(key, result);
   return result;
 }
 
@@ -446,7 +419,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
     const valueApart = 1 - positionCorrelationOf(stash.value);
     const keyApart = 1 - positionCorrelationOf(stash.key);
-    // δs_ij = p_ij·δo_i·(v_j − v̄_i): each row keeps 1 − 1/n_i of the values' deviations (centredSquares)
+    // δs_ij = p_ij·δo_i·(v_j − v̄_i): each row keeps E[S + S² − 2Σp³] of the values' deviations (centredSquares)
     const centredElement = spec.causal ? (stash.rows.centredSquares * P) / ((P * (P + 1)) / 2) : stash.rows.centredSquares / Math.max(P, 1);
     const logitQ = centredElement * probQ * unmaskedShare * valueApart;
     // δq_i = c·Σ_j p_ij·(δo_i·ṽ_j)·k̃_j over the deviations ṽ, k̃ (what positions share cancels). With W_v and W_k the same
@@ -503,18 +476,18 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         // under a causal mask E[p²] is per unmasked element, and the masked share of the logits' gradient is zero
         () =>
           spec.causal
-            ? `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v)·(unmasked share) = ${fmt(centredElement)}·${fmt(valueApart)}·${fmt(unmaskedShare)}`
-            : `softmax Jacobian: E[p²]·(1 − 1/n)·(1 − ρ_v) = ${fmt(centredElement)}·${fmt(valueApart)}`,
+            ? `softmax Jacobian: E[S + S² − 2Σp³]/n·(1 − ρ_v)·(unmasked share) = ${fmt(centredElement)}·${fmt(valueApart)}·${fmt(unmaskedShare)}`
+            : `softmax Jacobian: E[S + S² − 2Σp³]/n·(1 − ρ_v) = ${fmt(centredElement)}·${fmt(valueApart)}`,
         valueApart < 1 ? CANCEL_SOURCE : SOFTMAX_SOURCE,
       );
       const queryFactor = factor(
         queryQ / Math.max(headsQ, 1e-300),
-        () => `attention query: (Σp²·(1 − 1/n) + (1 − Σp²)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
+        () => `attention query: (E[S + S² − 2Σp³] + (1 − S)/D)·d·c²·E[v²](1 − ρ_v)·E[k²](1 − ρ_k) = ${fmt(queryQ / Math.max(headsQ, 1e-300))} with D = ${inWidth}`,
         SOURCE,
       );
       const keyFactor = factor(
         keyQ / Math.max(headsQ, 1e-300),
-        () => `attention key: (Σp²·(1 − 1/n) + ρ_o·ρ_q·(mean a_j² − Σp²))·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))} with ρ_o·ρ_q = ${fmt(rowPairs)}`,
+        () => `attention key: (E[S + S² − 2Σp³] + ρ_o·ρ_q·(mean a_j² − S))·d·c²·E[v²](1 − ρ_v)·E[q²] = ${fmt(keyQ / Math.max(headsQ, 1e-300))} with ρ_o·ρ_q = ${fmt(rowPairs)}`,
         SOURCE,
       );
       const valueFactor = factor(
