@@ -111,10 +111,11 @@ describe("the loss-scale pick weighed against the findings it leaves", () => {
     const centre = byScale.get(weighing.centreLog2)!;
     expect(weighing.atCentre).toEqual(centre);
     expect(weighing.atPick).toEqual(byScale.get(answer.window.pickLog2!));
+    // no scale of the window, the centre among them, leaves fewer findings without more overflow than the pick (with
+    // attention's exact row moments the example's centre 2^14 is itself such a best scale, and the pick stays there)
     for (const [k, found] of byScale) {
       if (found.overflowSide <= centre.overflowSide) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
     }
-    expect(better(weighing.atPick, centre)).toBe(true);
   });
 
   it("a spec whose centre leaves no such finding keeps the centre, unweighed", () => {
