@@ -76,4 +76,22 @@ describe("zero padding between batch-normed convolutions", () => {
     expect(d.size).toBe(3);
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.35);
   });
+
+  it("a padded convolution's weight gradient sums each tap over the pixels it reaches (−0.27 binade before, 3 × 3 images)", () => {
+    // an invented seed-tray camera: 3 × 3 thermal tiles, one pixel of zeros around, so a border tap reaches 2 of 3 rows
+    // or columns and the taps' mean count of terms is (7/9)² of the rule's batch × pixels
+    const yaml = `name: seed-tray
+description: invented
+input: { channels: 8, height: 3, width: 3 }
+training: { batch: 64, loss: { kind: cross-entropy, classes: 4 } }
+${WIDE_PLAN}layers:
+  - { type: conv2d, name: c1, channels: 16, kernel: 3, padding: 1 }
+  - { type: tanh, name: a1 }
+  - flatten
+  - { type: dense, name: head, width: 4 }
+`;
+    const d = measuredDifferences(yaml, "seed-tray", /^c1\/weight-gradient$/);
+    expect(d.size).toBe(1);
+    for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.2);
+  });
 });

@@ -105,14 +105,22 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     const gain = variance * connections;
     const result = linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
     if (taps === undefined) return result;
+    const pixels = taps.outRows * taps.outColumns;
     const leak = borderLeak(ctx.batch, taps, output);
-    if (!(leak > 0)) return result;
-    if (result.input !== undefined) leakChannelSum(ctx.batch, variance * (w.shape[0] ?? 1) * leak, result.input, layer);
-    // the weight gradient of tap k sums x·δ over V_k only: an input of mean m adds m²·E[(Σ_{V_k} δ)²] beyond the whole
-    // sum the per-pixel pairs count (own algebra, as borderLeak), averaged over the k² taps
+    if (leak !== 0 && result.input !== undefined) leakChannelSum(ctx.batch, variance * (w.shape[0] ?? 1) * leak, result.input, layer);
+    // tap k's weight gradient sums x·δ over V_k only, where the rule counts every output pixel: its second moment is
+    // the same sum over v_k pixels (pairs paired as in gradientSum), averaged over the k² taps (own algebra)
     const weightGradient = result.weightGradients[0];
     if (weightGradient !== undefined && weightGradient.weight === "weight") {
-      weightGradient.q += (sharedOf(stash.input) * leak) / (taps.kernel * taps.kernel);
+      const x = stash.input;
+      const q = x.q * output.q;
+      const rp = positionCorrelationOf(x) * positionCorrelationOf(output);
+      const rs = sampleCorrelationOf(x) * sampleCorrelationOf(output);
+      const rc = crossCorrelationOf(x) * crossCorrelationOf(output);
+      const whole = subsetSum(ctx.batch, pixels, q, rp, rs, rc);
+      let change = 0;
+      for (const r of taps.rows) for (const c of taps.columns) change += subsetSum(ctx.batch, r * c, q, rp, rs, rc) - whole;
+      weightGradient.q = Math.max(weightGradient.q + change / (taps.kernel * taps.kernel), 0);
     }
     return result;
   },
@@ -124,9 +132,10 @@ function subsetSum(batch: number, v: number, q: number, rp: number, rs: number, 
 }
 
 /**
- * Σ_k of what the output pixels V_k at which tap k reads inside sum of the gradient beyond their share (v_k/P)² of the
- * whole sum, over the batch: without padding every V_k is all pixels and this is zero; with padding the border taps
- * sum a part of the output gradient, which a zero total (below a batch norm) does not cancel (own algebra).
+ * Σ_k of what the output pixels V_k at which tap k reads inside sum of the gradient, less the share v_k/P of the whole
+ * sum that the per-pixel rule gives each tap: zero without padding (every V_k is all pixels) and for independent terms;
+ * below a batch norm, whose gradient sums to zero over all pixels, the border taps' partial sums are all there is
+ * (own algebra).
  */
 function borderLeak(batch: number, taps: TapCounts, output: Gradient): number {
   const pixels = taps.outRows * taps.outColumns;
@@ -138,7 +147,7 @@ function borderLeak(batch: number, taps: TapCounts, output: Gradient): number {
   for (const r of taps.rows) {
     for (const c of taps.columns) {
       const v = r * c;
-      if (v > 0 && v < pixels) leak += Math.max(subsetSum(batch, v, output.q, rp, rs, rc) - (v / pixels) * (v / pixels) * whole, 0);
+      if (v > 0 && v < pixels) leak += subsetSum(batch, v, output.q, rp, rs, rc) - (v / pixels) * whole;
     }
   }
   return leak;
@@ -155,7 +164,7 @@ function leakChannelSum(batch: number, added: number, input: Gradient, layer: Gr
   const ps = positionCorrelationOf(input);
   const ss = sampleCorrelationOf(input);
   const cs = crossCorrelationOf(input);
-  const total = subsetSum(batch, pixelsIn, input.q, ps, ss, cs) + added;
+  const total = Math.max(subsetSum(batch, pixelsIn, input.q, ps, ss, cs) + added, 0);
   const between = (total / (batch * pixelsIn * input.q) - 1 - (pixelsIn - 1) * ps) / (batch - 1);
   input.crossCorrelation = Math.min(Math.max((between - ss) / (pixelsIn - 1), -1), 1);
 }
