@@ -96,6 +96,18 @@ export const poolRule: AnalyticRule<null> = {
       logVar: input.logVar,
       gaussian: false,
     };
+    if (layer.family === "max-pool" && q > 0) {
+      // overlapping windows share inputs, so their maxima co-vary beyond the mean: the pairs of output pixels average
+      // mean² plus each overlapping pair's covariance (own algebra; the covariance by quadrature, maxOfShared)
+      const rectified = input.shape === "half-gaussian" && input.zeroFraction >= 0.5;
+      const scale = rectified ? input.q / (1 - input.zeroFraction) : variance;
+      const pixels = positionCount(layer.output);
+      const covariances = overlapSum(layer, (overlap) => {
+        const m = maxOfShared(k, overlap, rectified);
+        return m.cross - m.mean * m.mean;
+      });
+      if (pixels > 1 && covariances > 0) output.positionCorrelation = Math.min((mean * mean + (scale * covariances) / (pixels * (pixels - 1))) / q, 1);
+    }
     return {
       output,
       factors: ctx.ledger ? [factor(input.q > 0 ? q / input.q : 0, () => `${rule} = ${fmt(input.q > 0 ? q / input.q : 0)}`, source)] : NO_FACTORS,
@@ -168,11 +180,10 @@ export const poolRule: AnalyticRule<null> = {
 };
 
 /**
- * Σ over ordered pairs of distinct output windows of the chance that both pick the same input pixel: overlap/union of
- * their pixels (the union's maximum, for independent inputs, lies in the overlap with that chance). Zero without
- * overlap (stride ≥ size).
+ * Σ over ordered pairs of distinct output windows that overlap of f(overlap), the pixels (positions) they share; zero
+ * without overlap (stride ≥ size).
  */
-export function overlapCollisions(layer: GraphLayer): number {
+function overlapSum(layer: GraphLayer, f: (overlap: number) => number): number {
   const spec = layer.spec as PoolLayer;
   const size = spec.size;
   const stride = spec.stride;
@@ -188,10 +199,61 @@ export function overlapCollisions(layer: GraphLayer): number {
       if (a === 0 && b === 0) continue;
       const overlap = (image ? span(a) : 1) * span(b);
       if (overlap === 0) continue;
-      const area = image ? size * size : size;
       const pairs = Math.max(rows - Math.abs(a), 0) * Math.max(columns - Math.abs(b), 0);
-      sum += (pairs * overlap) / (2 * area - overlap);
+      if (pairs > 0) sum += pairs * f(overlap);
     }
   }
   return sum;
+}
+
+/**
+ * Σ over ordered pairs of distinct output windows of the chance that both pick the same input pixel: overlap/union of
+ * their pixels (the union's maximum, for independent inputs, lies in the overlap with that chance).
+ */
+export function overlapCollisions(layer: GraphLayer): number {
+  const k = windowElements(layer);
+  return overlapSum(layer, (overlap) => overlap / (2 * k - overlap));
+}
+
+const sharedCache = new Map<string, { mean: number; cross: number }>();
+
+/**
+ * For two windows of k independent standard normals sharing `shared` of them: E[M] and E[M_A·M_B] of their maxima (or
+ * of the maxima's ReLU, `rectified`). With U the shared part's maximum and X, Y the others', M_A = max(U, X):
+ * E[M_A·M_B] = ∫ f_U(u)·E[max(u, X)]² du, E[max(u, X)] = u·F_X(u) + ∫_u^∞ x dF_X(x) (order statistics; Simpson's rule
+ * on [−10, 10] as maxOfNormals).
+ */
+export function maxOfShared(k: number, shared: number, rectified: boolean): { mean: number; cross: number } {
+  const key = `${k}:${shared}:${rectified}`;
+  const hit = sharedCache.get(key);
+  if (hit !== undefined) return hit;
+  const steps = 4000;
+  const h = 20 / steps;
+  const others = k - shared;
+  const xs = new Float64Array(steps + 1);
+  const pdf = new Float64Array(steps + 1);
+  const cdf = new Float64Array(steps + 1);
+  for (let i = 0; i <= steps; i++) {
+    xs[i] = -10 + i * h;
+    pdf[i] = Math.exp(-0.5 * xs[i]! * xs[i]!) / Math.sqrt(2 * Math.PI);
+    if (i > 0) cdf[i] = Math.min(cdf[i - 1]! + 0.5 * h * (pdf[i]! + pdf[i - 1]!), 1);
+  }
+  // tail[i] = ∫_{x_i}^∞ x dF_X(x), F_X = Φ^others, by the trapezoid from the top
+  const tail = new Float64Array(steps + 1);
+  const density = (i: number): number => (others > 0 ? others * pdf[i]! * Math.pow(cdf[i]!, others - 1) : 0);
+  for (let i = steps - 1; i >= 0; i--) tail[i] = tail[i + 1]! + 0.5 * h * (xs[i]! * density(i) + xs[i + 1]! * density(i + 1));
+  const zero = Math.round(10 / h);
+  let mean = 0;
+  let cross = 0;
+  for (let i = 0; i <= steps; i++) {
+    const j = rectified && i < zero ? zero : i;
+    const g = xs[j]! * Math.pow(cdf[j]!, others) + tail[j]!;
+    const fU = shared * pdf[i]! * Math.pow(cdf[i]!, shared - 1);
+    const weight = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
+    mean += weight * fU * g;
+    cross += weight * fU * g * g;
+  }
+  const result = { mean, cross };
+  sharedCache.set(key, result);
+  return result;
 }
