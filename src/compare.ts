@@ -71,7 +71,7 @@ export interface PlanOutcome {
   /** memory saved against the baseline (`PlanComparison.baseline`, all binary32), as a share of its bytes (parameters + activations) */
   savedShare: number;
   /** whether the plan stores every tensor as the baseline does (its saved share is 0 by definition) */
-  baseline: boolean;
+  storesAsBaseline: boolean;
 }
 
 export interface PlanComparison {
@@ -183,7 +183,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       firstProblem: firstProblem(result, optimizer, answer),
       cost,
       savedShare: 0,
-      baseline: sameStorage(plan, ALL_BINARY32_PLAN),
+      storesAsBaseline: sameStorage(plan, ALL_BINARY32_PLAN),
     };
   });
   for (const o of outcomes) {

@@ -33,7 +33,7 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     `${byteCount(o.cost.bytesPerParameter)} B`,
     `${byteCount(o.cost.bytesPerActivation)} B`,
     formatBytes(o.cost.parameterBytes + o.cost.activationBytes),
-    o.baseline ? "—" : formatPercent(o.savedShare),
+    o.storesAsBaseline ? "—" : formatPercent(o.savedShare),
   ]);
   out += renderTable(
     [

@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { comparePlans, planCost } from "../../src/compare.js";
+import { ALL_BINARY32_PLAN, comparePlans, planCost } from "../../src/compare.js";
 import { check } from "../../src/check.js";
 import { renderCompareText } from "../../src/report/compare-text.js";
 import { parseSpec, type NetworkSpec, type PrecisionPlan } from "../../src/spec/index.js";
@@ -84,5 +84,19 @@ describe("compare's memory column", () => {
     expect(flowing).toMatch(/saved: against all binary32 \(every tensor in binary32, no master copy: [\d.]+ KiB\)/);
     expect(flowing).toMatch(/block-scaled 8-bit tensors also hold one scale byte per 32 elements/);
     expect(text).toMatch(/14\.06 B/);
+  });
+});
+
+describe("the saved column's dash", () => {
+  it("marks a plan that stores every tensor as all binary32 does, whatever it is called", () => {
+    const s = spec();
+    const renamed: PrecisionPlan = { ...ALL_BINARY32_PLAN, name: "full-width" };
+    const comparison = comparePlans(s, { plans: [renamed, plan(s, "binary32")] });
+    const full = comparison.outcomes.find((o) => o.plan.name === "full-width")!;
+    expect(full.storesAsBaseline).toBe(true);
+    expect(full.savedShare).toBe(0);
+    expect(comparison.outcomes.find((o) => o.plan.name === "binary32")!.storesAsBaseline).toBe(false);
+    const row = renderCompareText(comparison, { width: 200 }).split("\n").find((line) => line.includes("full-width"))!;
+    expect(row).toMatch(/—\s*$/);
   });
 });
