@@ -35,6 +35,7 @@ import {
   weightOf,
 } from "../common.js";
 import { gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
+import { densePullback } from "../dense/analytic.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -540,14 +541,17 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       },
     ];
     const N = ctx.batch * P;
-    const wg = (weight: string, x: Signal, delta: Gradient, logVar: number): WeightGradientMoment => ({
+    const wg = (weight: string, x: Signal, delta: Gradient, logVar: number, alignedQ = 0): WeightGradientMoment => ({
       weight,
-      q: gradientSum(ctx.batch, P, delta, x),
+      q: gradientSum(ctx.batch, P, delta, x) + alignedQ,
+      alignedQ,
       coherentQ: N * N * x.q * delta.q,
       terms: N,
       zeroFraction: 0,
       logVar,
-      rule: ctx.ledger ? () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share` : "",
+      rule: ctx.ledger
+        ? () => `sum of ${N} products (batch × positions) of input and gradient, plus the parts positions and samples share${alignedQ > 0 ? " and the part the loss's curvature aligns" : ""}`
+        : "",
     });
     const input = linearGradient(inputQ, heads.logVar, inWidth);
     input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
@@ -564,6 +568,13 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // second moment c²·E[ξ²] = E[δq²]/(fan_in·var_w of W_k) since δq_i = c·W_k·ξ_i
     const gainV = stash.valueGain > 0 ? stash.valueGain : 1;
     const averagedInput: Signal = { ...stash.heads, q: stash.heads.q / gainV, shared: (stash.heads.shared ?? 0) / gainV };
+    // the loss's curvature M at the output (start of the horizon) aligns a part of the output and value weight gradients,
+    // the same in every micro-batch: N²·E[x²]²·var_w·(row squares of the curvature each weight sees), W_o seeing M and
+    // W_v (through h = W_v·x̄) M_h = W_oᵀ·M·W_o (own algebra, as dense's and the gated layer's weights)
+    const curvature = output.curvature;
+    const outputAligned = curvature === undefined ? 0 : N * N * stash.heads.q * stash.heads.q * ctx.variance(wo) * curvature.rowSquares;
+    const valueAligned =
+      curvature === undefined ? 0 : N * N * averagedInput.q * averagedInput.q * ctx.variance(wv) * densePullback(curvature, ctx.variance(wo), wo.fanOut, inner).rowSquares;
     const keyMap = ctx.variance(wk) * wk.fanIn;
     const keyRows: Gradient = { ...queryGradient, q: keyMap > 0 ? queryQ / keyMap : 0 };
     if (queryGradient.shared !== undefined && keyMap > 0) keyRows.shared = queryGradient.shared / keyMap;
@@ -574,8 +585,8 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       weightGradients: [
         wg("query", stash.input, queryGradient, stash.input.logVar + heads.logVar),
         wg("key", stash.query, keyRows, stash.input.logVar + heads.logVar),
-        wg("value", averagedInput, heads, stash.input.logVar + heads.logVar),
-        wg("output", stash.heads, output, stash.heads.logVar + output.logVar),
+        wg("value", averagedInput, heads, stash.input.logVar + heads.logVar, valueAligned),
+        wg("output", stash.heads, output, stash.heads.logVar + output.logVar, outputAligned),
       ],
     };
   },
