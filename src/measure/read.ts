@@ -38,6 +38,10 @@ export async function openTensorFile(path: string): Promise<{ ok: true; file: Op
     const size = stat.size;
     const first = await readExactly(handle, 0, Math.min(12, size));
     const isNpy = first.length >= 6 && NPY_MAGIC.every((b, i) => first[i] === b);
+    if (!isNpy && isZip(first)) {
+      await handle.close();
+      return { ok: false, issue: { file: path, message: ZIP_MESSAGE } };
+    }
     if (!isNpy && /\.npy$/i.test(path) && !looksLikeSafetensors(first, size)) {
       await handle.close();
       return { ok: false, issue: { file: path, message: notNpyMessage(first) } };
@@ -65,6 +69,13 @@ function looksLikeSafetensors(first: Uint8Array, size: number): boolean {
   const start = first[8]!;
   return length >= 2n && 8n + length <= BigInt(size) && (start === 0x7b || start === 0x20 || start === 0x09 || start === 0x0a || start === 0x0d);
 }
+
+// a zip archive starts with a local file header, "PK\x03\x04" (PKWARE's APPNOTE.TXT §4.3.7); NumPy's .npz is one
+function isZip(first: Uint8Array): boolean {
+  return first.length >= 4 && first[0] === 0x50 && first[1] === 0x4b && first[2] === 0x03 && first[3] === 0x04;
+}
+
+const ZIP_MESSAGE = "a zip archive (as NumPy's .npz is), not a safetensors file or a .npy array: extract its .npy arrays and give those";
 
 function notNpyMessage(first: Uint8Array): string {
   const shown = [...first.subarray(0, 6)].map((b) => b.toString(16).padStart(2, "0")).join(" ");

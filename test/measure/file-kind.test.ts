@@ -71,3 +71,16 @@ describe("a .npy file cut inside its prefix", () => {
     expect(issues).toEqual([{ file: path, byteOffset: 8, message: "file ends after 8 bytes, inside the .npy prefix (magic, version, header length: 10 bytes)" }]);
   });
 });
+
+describe("a zip archive", () => {
+  it("is named as one, whatever its name, instead of being read as a safetensors header length", async () => {
+    // a zip archive starts with a local file header "PK\x03\x04" (PKWARE's APPNOTE.TXT §4.3.7); NumPy's .npz is a zip of .npy files
+    const zip = Uint8Array.of(0x50, 0x4b, 0x03, 0x04, 0x14, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0);
+    for (const name of ["arrays.npz", "weights.npy", "weights.safetensors"]) {
+      const path = files.write(name, zip);
+      expect((await scanOne(path)).issues, name).toEqual([
+        { file: path, message: "a zip archive (as NumPy's .npz is), not a safetensors file or a .npy array: extract its .npy arrays and give those" },
+      ]);
+    }
+  });
+});
