@@ -92,11 +92,13 @@ layers:
     const rows = measuredDifferences(yaml, "frame-tagger", /^(enc|front)\b.*(activation-gradient|weight-gradient)/, 5);
     expect(rows.size).toBeGreaterThan(40);
     for (const [id, diff] of rows) {
-      // Held to a larger tolerance, with the diagnosis: the bias gradients of the layer norms and the front layer, sums
-      // of the attention's input gradient over batch × positions, are measured 0.19–0.94 binade below the prediction
-      // (and were 2.0–7.2 before) while that gradient's rms agrees within 0.2: the part its positions or samples share is
-      // overestimated in concentrated rows (not diagnosed further)
-      const tolerance = id.endsWith(":bias") ? 1.25 : TOLERANCE;
+      // Held to a larger tolerance (the largest gap plus 0.3, as the sweep's known cases), with the diagnosis: the bias
+      // gradients of the layer norms and the front layer, sums of the attention's input gradient over batch × positions,
+      // are measured up to 0.76 binade below the prediction (−0.76 front, −0.50 / −0.33 / −0.08 / +0.24 the norms from the
+      // bottom block up; 2.0–7.2 before the exact rows, up to 0.94 before the keys' zero sum,
+      // test/ops/cross-sample-correlation.test.ts) while that gradient's rms agrees within 0.2: the part its positions
+      // or samples share is still overestimated down the stream (not diagnosed further)
+      const tolerance = id.endsWith(":bias") ? 1.06 : TOLERANCE;
       expect(Math.abs(diff), `${id}: ${diff.toFixed(2)} binades`).toBeLessThan(tolerance);
     }
   });

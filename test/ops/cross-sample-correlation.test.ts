@@ -288,6 +288,49 @@ describe("attention: pair correlations of the gradient, against its float64 kern
   }
 });
 
+describe("attention: the key gradients of one sample sum to zero, against its float64 kernel", () => {
+  // an invented chord-sequence encoder: 16 features at 8 positions, 2 heads of width 32, unscaled logits (s² = 32,
+  // concentrated rows). Every row of the softmax Jacobian sums to zero, so Σ_j δk_j = c·Σ_i q_i·Σ_j δs_ij = 0 in each
+  // sample and the keys' gradients pair at −1/(P − 1) = −0.143 (own algebra); the key path then adds nothing to a sum of
+  // the input gradient over positions. Before this rule the key gradients were taken as independent between positions
+  // (ρ = 0), which put the input gradient's position correlation at +0.006 against −0.053 measured here (causal: +0.005
+  // against −0.048); now −0.050 and −0.047
+  const [B, P, D, heads, d] = [8, 8, 16, 2, 32];
+  for (const causal of [false, true]) {
+    test(`${causal ? "causal" : "full"}: the key gradient's and the input gradient's pairs of positions`, () => {
+      const spec = makeSpec([attention("mix", heads, d, { causal, scaling: "none", init: normalInit(0.25) }), dense("out", 4)], { input: features(D, P), loss: mse() });
+      const layer = layerOf(spec, "mix");
+      const input: Signal = { q: 1, mean: 0, shared: 0, positionCorrelation: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
+      const output: Gradient = { q: 1, shared: 0, positionCorrelation: 0, crossCorrelation: 0, zeroFraction: 0, shape: "gaussian", logVar: 0 };
+      const ctx = context(B);
+      const forward = attentionRule.forward(ctx, layer, input, {});
+      const backward = attentionRule.backward(ctx, layer, forward.stash, output, {});
+      const random = createRandom(causal ? 13 : 11);
+      const keys = new PairMoments();
+      const inputs = new PairMoments();
+      const cfg = { batch: B, positions: P, width: D, heads, headWidth: d, causal, scaling: "none" as const, subtractMax: true };
+      for (let k = 0; k < 40; k++) {
+        const w: AttentionWeights = {
+          query: normals(random, heads * d * D, Math.sqrt(weightVariance(layer, "query"))),
+          key: normals(random, heads * d * D, Math.sqrt(weightVariance(layer, "key"))),
+          value: normals(random, heads * d * D, Math.sqrt(weightVariance(layer, "value"))),
+          output: normals(random, D * heads * d, Math.sqrt(weightVariance(layer, "output"))),
+        };
+        const { saved } = attentionForward(normals(random, B * P * D, 1), w, cfg);
+        const g = attentionBackward(normals(random, B * P * D, 1), w, saved, cfg, (tensor, data) => {
+          if (tensor === "key-gradient") keys.add(data, B, P, heads * d);
+        });
+        inputs.add(g.dx, B, P, D);
+      }
+      const key = backward.inner.find((g) => g.suffix === "key")!.gradient;
+      expect(keys.result.position, "the kernel's key gradients sum to zero over positions").toBeCloseTo(-1 / (P - 1), 10);
+      expect(positionCorrelationOf(key)).toBeCloseTo(-1 / (P - 1), 12);
+      const dx = backward.input!;
+      expect(Math.abs(inputs.result.position - positionCorrelationOf(dx)), `input: measured ρ ${inputs.result.position.toFixed(3)}, predicted ${positionCorrelationOf(dx).toFixed(3)}`).toBeLessThan(0.03);
+    });
+  }
+});
+
 describe("attention's ledger: the softmax Jacobian's line multiplies out to its factor", () => {
   // the numbers a ledger line shows after "=" are the factors of its ratio (each to 4 significant digits, fmt), so
   // their product is the ratio within 4 roundings of 5e-4 relative: arithmetic, full and under a causal mask (whose

@@ -455,7 +455,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     if (valueSamplePair !== 0) valueGradient.shared = valueSamplePair;
     valueGradient.crossCorrelation = valueQ > 0 ? valueCrossPair / valueQ : 0;
     // δq_i weighs the same keys' and values' deviations in every row, so rows share what their δo share; δk_j weighs
-    // key j's own value deviation, independent between keys. Both are sums of δo·(v_j − Σ_l p_il v_l), where the part
+    // key j's own value deviation (its pairs below). Both are sums of δo·(v_j − Σ_l p_il v_l), where the part
     // of the values two samples share cancels. Two samples' query gradients still pair through the shared W_v and W_k,
     // by the 1/D term above times what their δo share; their key gradients pair through two different dot products
     // x̃_n,j·x̃_m,j and x̃_n,i·x̃_m,i', of mean 0, so they share nothing (own algebra)
@@ -464,10 +464,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const queryCrossPair = queryCoherent * headsCross;
     if (querySamplePair !== 0) queryGradient.shared = querySamplePair;
     queryGradient.crossCorrelation = queryQ > 0 ? queryCrossPair / queryQ : 0;
-    const keyGradient: Gradient = { q: keyQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: 0 };
+    // every row of the softmax Jacobian sums to zero, so Σ_j δk_j = c·Σ_i q_i·Σ_j δs_ij = 0 in each sample: the P keys'
+    // gradients pair at −1/(P − 1) on average (own algebra), and the key path adds nothing to a sum over positions
+    const keyPositionCorrelation = P > 1 ? -1 / (P - 1) : 0;
+    const keyGradient: Gradient = { q: keyQ, zeroFraction: 0, shape: "gaussian", logVar: heads.logVar, positionCorrelation: keyPositionCorrelation };
     const queryInput = ctx.variance(wq) * wq.fanOut * queryQ;
     const valueInput = ctx.variance(wv) * wv.fanOut * valueQ;
-    const inputQ = queryInput + ctx.variance(wk) * wk.fanOut * keyQ + valueInput;
+    const keyInput = ctx.variance(wk) * wk.fanOut * keyQ;
+    const inputQ = queryInput + keyInput + valueInput;
     // the ledger factors, made only with a ledger (one closure instead of every factor and its wording in both passes)
     const backwardFactors = () => {
       const headFactor = factor(outGain, () => `attention output: fan_out·var_w = ${fmt(outGain)}`, SOURCES.backward);
@@ -554,7 +558,8 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         : "",
     });
     const input = linearGradient(inputQ, heads.logVar, inWidth);
-    input.positionCorrelation = inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0)) / inputQ : 0;
+    input.positionCorrelation =
+      inputQ > 0 ? (valueInput * valuePositionCorrelation + queryInput * (queryGradient.positionCorrelation ?? 0) + keyInput * keyPositionCorrelation) / inputQ : 0;
     // what two samples share reaches the input by the value and query paths (the key gradients share nothing across
     // samples); W_vᵀ and W_qᵀ keep their pair moments, and the independent W_v, W_q leave no pairs between the paths
     // (own algebra)
