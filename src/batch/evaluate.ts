@@ -4,7 +4,7 @@
  * thread, the library and the tests share this code.
  */
 import { formatSpecIssue, formatSpecPath, MAX_SPEC_BYTES, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
-import type { RowError, SpecSummary } from "./types.js";
+import type { ErrorPosition, RowError, SpecSummary } from "./types.js";
 import { decodeSpecBytes } from "../spec/text.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
 
@@ -48,16 +48,22 @@ function inputError(message: string, position?: RowError["position"]): TaskFailu
   return { status: "error", error: position ? { kind: "input", message, position } : { kind: "input", message } };
 }
 
-/** The row error for a spec's issues: the first one with its position, and how many more there are. */
+/**
+ * The row error for a spec's issues: the first one with its position and how many more there are, and every one of
+ * them (a user fixing a file wants them all at once, as `check` prints them).
+ */
 export function issuesError(issues: readonly SpecIssue[], originalLine: (line: number) => number = (line) => line): RowError {
   const mapped = issues.map((issue) => (issue.line > 0 ? { ...issue, line: originalLine(issue.line) } : issue));
   const first = mapped[0];
   if (!first) return { kind: "input", message: "the spec is not valid" };
   const more = mapped.length - 1;
   const message = formatSpecIssue(first) + (more > 0 ? ` (and ${more} more ${more === 1 ? "problem" : "problems"})` : "");
-  return first.line > 0
-    ? { kind: "input", message, position: { file: first.file, line: first.line, column: first.column } }
-    : { kind: "input", message, position: { file: first.file } };
+  const all = mapped.map((issue) => ({ message: formatSpecIssue(issue), position: issuePosition(issue) }));
+  return { kind: "input", message, position: issuePosition(first), issues: all };
+}
+
+function issuePosition(issue: SpecIssue): ErrorPosition {
+  return issue.line > 0 ? { file: issue.file, line: issue.line, column: issue.column } : { file: issue.file };
 }
 
 function readError(file: string, error: unknown): TaskFailure {

@@ -73,6 +73,11 @@ export interface RowError {
   /** one line, starting with the position when there is one */
   message: string;
   position?: ErrorPosition;
+  /**
+   * every problem of the spec, in the file's order, when the error is its problems (the `message` gives the first and a
+   * count of the others): each `message` a whole line starting with its position, as `check` prints it
+   */
+  issues?: { message: string; position: ErrorPosition }[];
 }
 
 /** One row of a batch: a spec file, or one variant of it. */

@@ -54,7 +54,10 @@ export async function checkVariants(
       },
     });
     if (outcome.status === "error") {
-      process.stderr.write(`${outcome.error.message} [${variant.name}]\n`);
+      // every problem of the varied spec, one line each, as a plain check prints them
+      const issues = outcome.error.issues;
+      const lines = issues !== undefined && issues.length > 1 ? issues.map((issue) => issue.message) : [outcome.error.message];
+      for (const line of lines) process.stderr.write(`${line} [${variant.name}]\n`);
       raiseExitCode(outcome.error.kind === "internal" ? EXIT.internal : EXIT.inputError);
       continue;
     }

@@ -131,12 +131,16 @@ function visible(text: string): string {
   return text.replace(CONTROL, controlEscape);
 }
 
-function errorLine(row: Extract<BatchRow, { status: "error" }>): string {
+/**
+ * The lines of an error row under the table: one per problem of its spec (every one, each with its file:line:column),
+ * or its one message; each with the variant it came from.
+ */
+function errorLines(row: Extract<BatchRow, { status: "error" }>): string[] {
   const variant = row.variant ? ` [${row.variant}]` : "";
   const kind = row.error.kind === "internal" ? "internal error: " : "";
+  const messages = row.error.issues !== undefined && row.error.issues.length > 1 ? row.error.issues.map((issue) => issue.message) : [row.error.message];
   // messages name their file (with the line and column) already; say it once
-  if (row.error.message.startsWith(row.file)) return visible(`${kind}${row.error.message}${variant}`);
-  return visible(`${row.file}${variant}: ${kind}${row.error.message}`);
+  return messages.map((message) => visible(message.startsWith(row.file) ? `${kind}${message}${variant}` : `${row.file}${variant}: ${kind}${message}`));
 }
 
 /** Options of the text renderer. */
@@ -189,7 +193,7 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
   const errors = rows.filter((row): row is Extract<BatchRow, { status: "error" }> => row.status === "error");
   if (errors.length > 0) {
     out += `\n${style.role("strong", "could not be evaluated")}\n`;
-    for (const row of errors) out += `  ${errorLine(row)}\n`;
+    for (const row of errors) for (const line of errorLines(row)) out += `  ${line}\n`;
   }
   const warned = warningLines(rows);
   if (warned.length > 0) {
@@ -229,7 +233,9 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
 /**
  * The CSV columns: fixed, so scripts can rely on them whatever the specs use. `loss_scale_log2` to
  * `loss_scale_status` give the check's loss-scale answer (the row's `lossScale`); `loss_scales`, last so the others
- * keep their places, gives every gradient format's (see {@link lossScalesCsvCell}).
+ * keep their places, gives every gradient format's (see {@link lossScalesCsvCell}). `error` gives an error row's first
+ * problem (and a count of the others); `error_issues`, after it for the same reason, every problem of the spec, one
+ * `file:line:column: key.path: message` line each (LF between them, inside the quoted field: RFC 4180 §2 rule 6).
  */
 export const BATCH_CSV_HEADER = [
   "index",
@@ -251,6 +257,7 @@ export const BATCH_CSV_HEADER = [
   "error_line",
   "error_column",
   "loss_scales",
+  "error_issues",
 ] as const;
 
 /** RFC 4180 CSV: a header, then one record per row, CRLF line ends; one column per known format. */
@@ -276,6 +283,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
         row.error.position?.line ?? "",
         row.error.position?.column ?? "",
         "",
+        (row.error.issues ?? []).map((issue) => issue.message).join("\n"),
       ];
     }
     const s = row.summary;
@@ -298,6 +306,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
       "",
       "",
       lossScalesCsvCell(s),
+      "",
     ];
   });
   return renderCsv(BATCH_CSV_HEADER, records);
@@ -347,7 +356,7 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
     cells,
   );
   const errors = rows.filter((row): row is Extract<BatchRow, { status: "error" }> => row.status === "error");
-  out += markdownList("Could not be evaluated", errors.map(errorLine));
+  out += markdownList("Could not be evaluated", errors.flatMap(errorLines));
   out += markdownList("Warnings (judged as written)", warningLines(rows));
   out += `\n_${escapeMarkdown(ESTIMATE_NOTE)}_\n`;
   return out;

@@ -9,9 +9,10 @@ export const register: RegisterCommand = (program) => {
     .argument("<paths...>", "spec files, folders (searched for *.yaml and *.yml), globs (* ? **), or - to read paths from stdin")
     .description(
       "Check many network specs at once, in parallel: one row per spec with its verdict per format, the loss-scale pick " +
-        "and window, and the worst tensor. A bad spec is reported in its row and never stops the others. Exit code 0 when " +
-        "all fit, 1 when some are at risk or fail, 2 when some could not be read or validated, 3 when headroom itself " +
-        "failed on one; the strictest applies. Predictions are estimates; confirm with a short run.",
+        "and window, and the worst tensor. A bad spec is reported in its row, every problem listed with its " +
+        "file:line:column, and never stops the others. Exit code 0 when all fit, 1 when some are at risk or fail, 2 when " +
+        "some could not be read or validated, 3 when headroom itself failed on one; the strictest applies. Predictions " +
+        "are estimates; confirm with a short run.",
     )
     .addOption(varyOption())
     .addOption(new Option("--jsonl", "print one JSON object per row (JSON Lines)").conflicts(["csv", "md"]))
