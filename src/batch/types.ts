@@ -74,7 +74,7 @@ export interface RowError {
   message: string;
   position?: ErrorPosition;
   /**
-   * every problem of the spec, in the file's order, when the error is its problems (the `message` gives the first and a
+   * every problem of the spec, in the file's order, when it has more than one (the `message` gives the first and a
    * count of the others): each `message` a whole line starting with its position, as `check` prints it
    */
   issues?: { message: string; position: ErrorPosition }[];

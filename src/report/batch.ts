@@ -232,10 +232,11 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
 
 /**
  * The CSV columns: fixed, so scripts can rely on them whatever the specs use. `loss_scale_log2` to
- * `loss_scale_status` give the check's loss-scale answer (the row's `lossScale`); `loss_scales`, last so the others
- * keep their places, gives every gradient format's (see {@link lossScalesCsvCell}). `error` gives an error row's first
- * problem (and a count of the others); `error_issues`, after it for the same reason, every problem of the spec, one
- * `file:line:column: key.path: message` line each (LF between them, inside the quoted field: RFC 4180 §2 rule 6).
+ * `loss_scale_status` give the check's loss-scale answer (the row's `lossScale`); `loss_scales`, after the columns
+ * before it so they keep their places, gives every gradient format's (see {@link lossScalesCsvCell}). `error` gives an
+ * error row's first problem (and a count of the others); `error_issues`, last for the same reason, every problem of
+ * the spec, one `file:line:column: key.path: message` line each, LF between them inside the quoted field (RFC 4180 §2
+ * rule 6); the error's message alone when it is not a spec's problems.
  */
 export const BATCH_CSV_HEADER = [
   "index",
@@ -283,7 +284,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
         row.error.position?.line ?? "",
         row.error.position?.column ?? "",
         "",
-        (row.error.issues ?? []).map((issue) => issue.message).join("\n"),
+        (row.error.issues?.map((issue) => issue.message) ?? [row.error.message]).join("\n"),
       ];
     }
     const s = row.summary;
