@@ -135,6 +135,8 @@ export function lossSeed(
   const residual = residualOf(medianOf(output.q, V));
   // targets independent of the outputs: the samples share only the outputs' shared part
   const gradient: Gradient = { q: seed.q, zeroFraction: 0, shape: "gaussian", logVar: seed.logVar, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, seed.q) };
+  // the samples share only the outputs' shared part, so that part keeps the outputs' own spread (own algebra)
+  if (output.sharedLogVar !== undefined) gradient.sharedLogVar = output.sharedLogVar;
   // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
   if (endLoss === undefined) gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
   return {

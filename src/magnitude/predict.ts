@@ -270,6 +270,12 @@ class Phase {
         signal = { ...signal };
         delete signal.featureCovariance;
       }
+      // the spread of two samples' cosines is followed through dense layers and activations only
+      if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && layer.family !== "dense" && layer.family !== "activation") {
+        signal = { ...signal };
+        delete signal.correlationSquare;
+        delete signal.sharedLogVar;
+      }
       if (RESETS.has(layer.family) || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
       this.emit(
         this.build ? prefix + result.role : "",
@@ -458,6 +464,7 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens
   // and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
+  if (input.sharedLogVar !== undefined && layer.family !== "dense" && layer.family !== "activation") delete input.sharedLogVar;
 }
 
 /**
@@ -480,6 +487,9 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
   } else {
     const q = input.scale * input.scale;
     signal = { q, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true };
+    // two independent isotropic Gaussian samples of d features have E[cos²] = 1/d (common practice); one position each
+    const features = input.kind === "features" ? input.features : 0;
+    if (input.kind === "features" && input.positions === 1 && features > 0) signal.correlationSquare = 1 / features;
     node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], build);
     p.emit(
       build ? "input/activation" : "",
@@ -570,7 +580,7 @@ function assumptions(spec: NetworkSpec): string[] {
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
     "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
     "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
-    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
+    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];

@@ -57,6 +57,18 @@ export interface Signal {
    */
   channelShared?: number;
   /**
+   * E[c²] over pairs of samples, c = x_n·x_m/(‖x_n‖·‖x_m‖) the cosine of two samples' feature vectors (one position
+   * per sample): shared/q is its mean, and a narrow random map's finite width spreads it (Fisher 1915), which the batch
+   * rms of a following linear map feels. Absent: unknown (set from the input, carried by dense layers and activations)
+   */
+  correlationSquare?: number;
+  /**
+   * variance over draws of ln of the shared part (the batch mean's square), where it differs from logVar: a narrow
+   * linear map's batch mean is one Gaussian per unit (Var/E² = 2/width) while its batch rms averages over the samples.
+   * Absent: logVar
+   */
+  sharedLogVar?: number;
+  /**
    * share of features that are exactly zero at every one of the batch × positions terms of a step (a ReLU unit off
    * for the whole batch): rows and columns of a weight gradient that are exactly zero
    */
@@ -81,6 +93,8 @@ export interface Gradient {
   bound?: number;
   /** set by a transposed weight map: the width it produced and the κ counted, for the next activation to replace */
   fresh?: { width: number; kappa: number };
+  /** as Signal.sharedLogVar: variance over draws of ln of the part the samples share, where it differs from logVar */
+  sharedLogVar?: number;
   /**
    * E[δ_n·δ_m] for two different samples of the batch (elementwise, averaged): the part of the gradient the samples
    * share. It makes the weight gradient's batch sum partly coherent. Absent: 0.

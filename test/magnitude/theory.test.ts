@@ -251,7 +251,8 @@ describe("finite-width spread", () => {
 
   test("the median-draw rms sits e^(−κβ/4) below the mean-field rms (ln‖h‖² ~ N(−κβ/2, κβ), SCIENCE.md §2.6)", () => {
     const width = 100;
-    const p = run(makeSpec(mlp(10, width), { input: features(width) }));
+    // the law is for one input vector: a batch's rms also averages what its samples do not share (dense batchSpread)
+    const p = run(makeSpec(mlp(10, width), { input: features(width), training: { batch: 1 } }));
     const t = tensor(p, "d9/pre-activation");
     // the pre-activation of layer 10 has seen 9 ReLU layers (κ = 5) and one linear map (κ = 2)
     const kb = (9 * 5 + 2) / width;

@@ -264,6 +264,14 @@ export function pointwiseForward(
   if (q > 0) output.positionCorrelation = Math.min(positionShared / q, 1);
   if (bound !== undefined) output.bound = bound;
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
+  const cosineSquare = input.correlationSquare;
+  if (cosineSquare !== undefined && q > 0) {
+    // two samples' output cosine r(c) = shared/q at their input cosine c; its slope is keep²·q·E[φ'(u)φ'(v)]/E[φ²]
+    // (Price 1958), so E[r²] = r(c̄)² + r'(c̄)²·Var(c) to first order (the delta method)
+    const r = Math.min(shared, q) / q;
+    const slopeAt = (keep * keep * qNonzero * cross.derivative) / q;
+    output.correlationSquare = Math.min(Math.max(r * r + slopeAt * slopeAt * Math.max(cosineSquare - correlation * correlation, 0), 0), 1);
+  }
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
   // a ReLU unit is off for the whole step when its pre-activation is ≤ 0 at every term
   const allOff = name === "relu" && qNonzero > 0 ? allBelowZero(meanPairCorrelation(ctx.batch, positions, sampleCorrelationOf(input), positionCorrelation), ctx.batch * positions) : 0;
@@ -314,6 +322,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   }
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
+  if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
   let ratio = derivativeSecond;
   if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
   if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);

@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { NO_FACTORS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -38,6 +38,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const outWidth = w.shape[0] ?? 1;
   // each output feature's mean over the batch is Σ_i W_ji·(mean of input i): its square averages to fan_in·var_w·shared_in
   const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
+  if (layer.family === "dense" && input.correlationSquare !== undefined && q > 0 && input.q > 0) batchSpread(output, input, ctx.batch, gain * input.q / q, biasVariance / q, input.correlationSquare);
   // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
   if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
   if (layer.family === "dense" && q > 0) {
@@ -70,6 +71,40 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   };
 }
 
+/**
+ * The finite-width spread of a dense layer's output over a batch of N samples (one position each), and the spread of
+ * the samples' cosines it passes on. Given the input, each output unit's batch vector (w·x_n + b)_n is Gaussian with
+ * covariance G (G_nm = var_w·x_n·x_m + var_b), so its batch sum of squares has Var/E² = 2·tr G²/(tr G)² = 2·D with
+ * D = 1/N + (1 − 1/N)·E[c²], c the pairs' cosine (moments of a Gaussian quadratic form; own algebra), not 2 as for one
+ * sample: D → 1 when the samples are alike (a deep ReLU stack's shared mean) and → 1/N for unrelated ones. A following
+ * activation replaces the κ counted here by its own (pointwiseForward). The cosine of two samples' outputs has mean
+ * c' = a·c + b (a, b the weights' and bias's shares of q) and, over the width's n independent units, the variance of a
+ * sample correlation, (1 − c'²)²/n (Fisher 1915), so E[c''²] = E[c'²] + (1 − E[c'²])²/n to leading order.
+ */
+function batchSpread(output: Signal, input: Signal, batch: number, a: number, b: number, s: number): void {
+  const width = output.fresh?.width ?? 1;
+  const rho = input.q > 0 ? Math.min(Math.max(sharedOf(input) / input.q, -1), 1) : 0;
+  const mapped = Math.min(Math.max(a * a * s + 2 * a * b * rho + b * b, 0), 1);
+  const D = batch > 1 ? 1 / batch + (1 - 1 / batch) * mapped : 1;
+  output.logVar = input.logVar + (LINEAR_KAPPA * D) / width;
+  output.fresh = { width, kappa: LINEAR_KAPPA * D };
+  output.correlationSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
+  // the batch mean of each unit, w·x̄ + b, is one Gaussian: its square keeps Var/E² = 2 per unit, D = 1
+  output.sharedLogVar = (input.sharedLogVar ?? input.logVar) + LINEAR_KAPPA / width;
+}
+
+/**
+ * ln-variance over draws of a sum over the batch of terms with moments `delta` (times an input with none of its own):
+ * the part beyond the independent terms' (`independent` of `sum`) is what the samples share, with the shared part's
+ * spread; interpolated by that share, exact when either part is the whole (own algebra)
+ */
+function sumLogVarOf(delta: Gradient, sum: number, independent: number): number {
+  const shared = delta.sharedLogVar;
+  if (shared === undefined || !(sum > 0)) return delta.logVar;
+  const w = Math.min(Math.max(1 - independent / sum, 0), 1);
+  return delta.logVar + w * (shared - delta.logVar);
+}
+
 /** Backward rule shared by dense and conv2d: δ_in = Wᵀ δ_out, plus the weight and bias gradients. */
 export function linearBackward(
   ctx: OpContext,
@@ -93,32 +128,35 @@ export function linearBackward(
   // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
   // E[x xᵀ]'s row: E[x²]² on the diagonal and the covariances of the (fan_in − 1) other features off it (featureCovariance)
   const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * (1 + (inWidth - 1) * (x.featureCovariance ?? 0)) * variance * curvature.rowSquares;
+  const weightSum = gradientSum(ctx.batch, positions, output, x);
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",
-      q: gradientSum(ctx.batch, positions, output, x) + aligned,
+      q: weightSum + aligned,
       alignedQ: aligned,
       betweenQ: gradientBetween(ctx.batch, positions, output, x),
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
-      logVar: x.logVar + output.logVar,
+      logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q),
       rule: ctx.ledger ? weightSumRule(terms) : "",
     },
   ];
   if (maybeWeight(layer, "bias") !== undefined) {
+    const biasSum = gradientSum(ctx.batch, positions, output);
     weightGradients.push({
       weight: "bias",
-      q: gradientSum(ctx.batch, positions, output),
+      q: biasSum,
       betweenQ: gradientBetween(ctx.batch, positions, output),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,
-      logVar: output.logVar,
+      logVar: sumLogVarOf(output, biasSum, terms * output.q),
       rule: ctx.ledger ? biasSumRule(terms) : "",
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
+  if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar + (input.logVar - output.logVar);
   let selfRatio = 1;
   if (curvature !== undefined && layer.family === "dense") {
     const outWidth = gain / variance;
