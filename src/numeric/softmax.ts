@@ -429,16 +429,29 @@ function oneHotRows(variance: number, n: number): SoftmaxRowMoments {
  * Returns an empty list for a non-finite or negative variance or fewer than one key.
  */
 export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxRowMoments[] {
+  return softmaxRows(variance, 1, maxKeys);
+}
+
+/**
+ * gaussianSoftmaxRows for rows of exactly `keys` keys only (full attention), without the sums of the shorter rows;
+ * undefined where gaussianSoftmaxRows returns an empty list.
+ */
+export function gaussianSoftmaxRow(variance: number, keys: number): SoftmaxRowMoments | undefined {
+  return softmaxRows(variance, keys, keys)[0];
+}
+
+/** The rows of minKeys … maxKeys keys of gaussianSoftmaxRows (index n − minKeys). */
+function softmaxRows(variance: number, minKeys: number, maxKeys: number): SoftmaxRowMoments[] {
   if (!(variance >= 0) || !Number.isFinite(variance) || !(maxKeys >= 1) || !Number.isInteger(maxKeys)) return [];
   const rows: SoftmaxRowMoments[] = [];
   if (variance > ONE_HOT_VARIANCE) {
-    for (let n = 1; n <= maxKeys; n++) rows.push(oneHotRows(variance, n));
+    for (let n = minKeys; n <= maxKeys; n++) rows.push(oneHotRows(variance, n));
     return rows;
   }
   if (variance < SMALL_VARIANCE) {
     // p ≈ (1 + z − z̄)/n (derived): S = (1 + s²(1 − 1/n))/n, Σ p z ≈ z̄ + Σ z(z − z̄)/n of second moment
     // s²/n + s⁴(1 − 1/n)² and mean s²(1 − 1/n); the Jacobian's share to zeroth order
-    for (let n = 1; n <= maxKeys; n++) {
+    for (let n = minKeys; n <= maxKeys; n++) {
       const spread = 1 - 1 / n;
       rows.push({ sumSquares: (1 + variance * spread) / n, centred: spread / n, tilt: 1 / n + variance * spread * spread, tiltMean: spread });
     }
@@ -465,15 +478,16 @@ export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxR
   const a4 = new Float64Array(latticeLength);
   rowTransforms(a0, a1, a2, a3, a4, base, spacing);
   // running sums per row length: E[p²], E[p³], E[p⁴], E[p_1²p_2²], E[p z], E[p² z²], E[p_1 p_2 z_1 z_2]
-  const sums = Array.from({ length: 7 }, () => new Float64Array(maxKeys));
+  const count = maxKeys - minKeys + 1;
+  const sums = Array.from({ length: 7 }, () => new Float64Array(count));
   for (let m = 0; m < steps; m++) {
     const offset = m * k;
     const oneMinusL0 = dot(weights, a0, offset, nz);
-    const l0 = 1 - oneMinusL0;
-    rowStep(sums, l0, dot(weights, a2, offset, nz), dot(weights, a3, offset, nz), dot(weights, a4, offset, nz), dot(wz, a1, offset, nz), dot(wzz, a2, offset, nz), maxKeys);
+    const l0 = Math.max(1 - oneMinusL0, 0);
+    rowStep(sums, l0, dot(weights, a2, offset, nz), dot(weights, a3, offset, nz), dot(weights, a4, offset, nz), dot(wz, a1, offset, nz), dot(wzz, a2, offset, nz), minKeys, count);
   }
-  for (let n = 1; n <= maxKeys; n++) {
-    const i = n - 1;
+  for (let n = minKeys; n <= maxKeys; n++) {
+    const i = n - minKeys;
     const at = (r: number): number => (sums[r] as Float64Array)[i] as number;
     const p2 = at(0) * U_STEP;
     const p3 = (at(1) * U_STEP) / 2;
@@ -512,13 +526,13 @@ function rowTransforms(a0: Float64Array, a1: Float64Array, a2: Float64Array, a3:
  * One node of ln t of gaussianSoftmaxRows for every row length: the one-class transforms A_2, A_3, A_4, E[z·y·e^(−y)]
  * and E[z²·y²·e^(−y)], weighted by L_0^(n−1) (and L_0^(n−2) for the pairs), added into the running sums.
  */
-function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: number, zy: number, zzyy: number, maxKeys: number): void {
+function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: number, zy: number, zzyy: number, minKeys: number, count: number): void {
   const [s0, s1, s2, s3, s4, s5, s6] = sums as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];
   const pair2 = a2 * a2;
   const pairZ = zy * zy;
-  let power = 1; // L_0^(n−1)
-  let previous = 0; // L_0^(n−2), none for n = 1
-  for (let i = 0; i < maxKeys; i++) {
+  let power = minKeys === 1 ? 1 : l0 ** (minKeys - 1); // L_0^(n−1)
+  let previous = minKeys === 1 ? 0 : l0 ** (minKeys - 2); // L_0^(n−2), none for n = 1
+  for (let i = 0; i < count; i++) {
     if (power === 0 && previous === 0) break;
     s0[i] = (s0[i] as number) + a2 * power;
     s1[i] = (s1[i] as number) + a3 * power;

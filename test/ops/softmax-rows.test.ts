@@ -5,7 +5,7 @@
  * logit; the existing E[p²] quadrature; and a seeded Monte Carlo of softmax rows.
  */
 import { describe, expect, it } from "vitest";
-import { createRandom, gaussianExpectation, gaussianSoftmaxMoments, gaussianSoftmaxRows } from "../../src/numeric/index.js";
+import { createRandom, gaussianExpectation, gaussianSoftmaxMoments, gaussianSoftmaxRow, gaussianSoftmaxRows } from "../../src/numeric/index.js";
 
 const sigmoid = (x: number): number => 1 / (1 + Math.exp(-x));
 
@@ -100,6 +100,17 @@ describe("gaussianSoftmaxRows", () => {
     const peaked = gaussianSoftmaxRows(16, 64)[63]!;
     expect(spread.centred / (spread.sumSquares * (1 - 1 / 64))).toBeGreaterThan(0.98);
     expect(peaked.centred / (peaked.sumSquares * (1 - 1 / 64))).toBeLessThan(0.3);
+  });
+
+  it("one row length alone (gaussianSoftmaxRow) agrees with the last of every length, spread, concentrated and one-hot", () => {
+    for (const [variance, n] of [[1e-5, 9], [1, 256], [30, 64], [900, 12]] as const) {
+      const all = gaussianSoftmaxRows(variance, n)[n - 1]!;
+      const one = gaussianSoftmaxRow(variance, n)!;
+      for (const key of ["sumSquares", "centred", "tilt", "tiltMean"] as const) {
+        expect(Math.abs(one[key] - all[key]), `${key} at s² = ${variance}, n = ${n}`).toBeLessThanOrEqual(1e-11 * Math.abs(all[key]));
+      }
+    }
+    expect(gaussianSoftmaxRow(Number.NaN, 4)).toBeUndefined();
   });
 
   it("returns nothing for a negative or non-finite variance or no keys", () => {

@@ -34,7 +34,7 @@ import {
   sumLogVar,
   weightOf,
 } from "../common.js";
-import { gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
+import { gaussianSoftmaxRow, gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
 import { densePullback } from "../dense/analytic.js";
 import type {
   AnalyticRule,
@@ -160,12 +160,14 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   const hit = rowCache.get(key);
   if (hit !== undefined) return hit;
   // +∞ (an overflowed logit variance) is the one-hot limit
-  const rows = gaussianSoftmaxRows(Math.min(s2, Number.MAX_VALUE), positions);
+  const variance = Math.min(s2, Number.MAX_VALUE);
+  // full attention needs its one row length only
+  const rows = causal ? gaussianSoftmaxRows(variance, positions) : [gaussianSoftmaxRow(variance, positions)].filter((r) => r !== undefined);
   let result: RowSums;
-  if (rows.length < positions || positions < 1) {
+  if (rows.length < (causal ? positions : 1) || positions < 1) {
     result = { sumSquares: NaN, centredSquares: NaN, elementSecond: NaN, keys: positions, rowLog2Variance: 0, tiltExcess: NaN };
   } else if (!causal) {
-    const row = rows[positions - 1] as SoftmaxRowMoments;
+    const row = rows[0] as SoftmaxRowMoments;
     result = {
       sumSquares: row.sumSquares,
       centredSquares: row.centred,
