@@ -12,6 +12,7 @@ import {
   type ComparisonRow,
   type DefaultLossScale,
   type DefaultLossScaleAnswer,
+  type FormatCounts,
   type MeasuredTensor,
   type ShrinkFactors,
   type SimulationReport,
@@ -155,13 +156,21 @@ export function parseShrink(text: string): Partial<ShrinkFactors> {
 }
 
 /**
- * 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation; 0 otherwise. The loss
- * is not stored (the run keeps it in binary64): its counts say what keeping the scaled loss in the activation format
- * would do, which check too calls at risk only (src/risk/hazards.ts lossValue), so they list it but set no exit code.
+ * 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation, or when the scaled loss
+ * overflowed the accumulate format; 0 otherwise. The loss is not stored (the run keeps it in binary64): its counts say
+ * what keeping the scaled loss in the activation format would do, which check too calls at risk only, so they list it
+ * but set no exit code; in the accumulate format, where the loss is summed, check says "fails" (src/risk/hazards.ts
+ * lossValue), and so does the exit code.
  */
 export function simulationExitCode(result: SimulationResult): number {
-  const bad = result.tensors.some((t) => t.countsScaledBy === undefined && t.median.counts.overflowed + t.median.counts.saturated + t.median.counts.nonFinite > 0);
+  const bad = result.tensors.some(
+    (t) => (t.countsScaledBy === undefined && overflowShare(t.median.counts) > 0) || (t.median.accumulateCounts !== undefined && overflowShare(t.median.accumulateCounts) > 0),
+  );
   return bad ? EXIT.findings : EXIT.ok;
+}
+
+function overflowShare(counts: FormatCounts): number {
+  return counts.overflowed + counts.saturated + counts.nonFinite;
 }
 
 /**
@@ -199,7 +208,13 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   lines.push("");
   const rows = comparison?.rows ?? [];
   const byId = new Map(rows.map((r) => [r.id, r]));
-  const shown = result.tensors.filter((t) => options.all === true || simulatedFinding(t.median.counts) || byId.get(t.id)?.disagrees === true);
+  const shown = result.tensors.filter(
+    (t) =>
+      options.all === true ||
+      simulatedFinding(t.median.counts) ||
+      (t.median.accumulateCounts !== undefined && simulatedFinding(t.median.accumulateCounts)) ||
+      byId.get(t.id)?.disagrees === true,
+  );
   const columns = [
     { title: "tensor", maxWidth: 60, cut: "middle" as const },
     { title: "format" },
@@ -218,10 +233,35 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
     { title: "overflow" },
     ...(result.steps > 0 ? [{ title: `rms after ${result.steps}` }] : []),
   ];
-  const cells: Cell[][] = shown.map((t) => {
+  const cells: Cell[][] = shown.flatMap((t) => {
     const row = byId.get(t.id);
     const m = t.median;
-    return [
+    const held = m.accumulateCounts;
+    // the scaled loss held in the accumulate format: its shares on a line of their own, under the loss's
+    const accumulateLine: Cell[][] =
+      held === undefined
+        ? []
+        : [
+            [
+              `${t.id} (accumulate)`,
+              held.format,
+              "",
+              "",
+              "",
+              ...(result.shrink.shrunk ? [""] : []),
+              "",
+              "",
+              "",
+              "",
+              "",
+              "",
+              share(held.flushed),
+              share(held.subnormal),
+              share(overflowShare(held)),
+              ...(result.steps > 0 ? [""] : []),
+            ],
+          ];
+    const line: Cell[] = [
       t.id,
       m.counts.format,
       row ? formatValue(row.predictedRms) : "",
@@ -239,6 +279,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       share(m.counts.overflowed + m.counts.saturated + m.counts.nonFinite),
       ...(result.steps > 0 ? [t.after !== undefined ? formatValue(t.after.rms) : ""] : []),
     ];
+    return [line, ...accumulateLine];
   });
   lines.push(
     options.all === true
@@ -246,12 +287,14 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
-  const loss = shown.find((t) => t.countsScaledBy !== undefined && t.countsScaledBy !== 1);
+  const loss = shown.find((t) => t.countsScaledBy !== undefined && (t.countsScaledBy !== 1 || t.median.accumulateCounts !== undefined));
   if (loss !== undefined) {
+    const scaled = loss.countsScaledBy === 1 ? "the loss" : `the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)})`;
+    const held = loss.median.accumulateCounts;
     lines.push(
-      `  ${loss.id}: the shares are of the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)}) ` +
-        `kept in the activation format, as check judges the loss value; the magnitudes are the loss's own. ` +
-        `The run keeps the loss in binary64, so it sets no exit code.`,
+      `  ${loss.id}: the shares are of ${scaled} kept in the activation format${held !== undefined ? ` and, on the line below, summed in the accumulate format, ${held.format}` : ""}, ` +
+        `as check judges the loss value; the magnitudes are the loss's own. The run keeps the loss in binary64, so ` +
+        (held !== undefined ? `only an overflow of the sum (which check says fails) sets the exit code.` : `it sets no exit code.`),
     );
   }
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));

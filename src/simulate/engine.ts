@@ -53,6 +53,8 @@ interface Setup {
   roundOptions: RoundOptions;
   round: boolean;
   accumulate: RoundFunction | undefined;
+  /** the plan's accumulate format, where check's loss-value rule also judges the scaled loss */
+  accumulateFormat: Format;
   lossScale: number;
   microBatches: number;
   wantedMicroBatches: number;
@@ -94,6 +96,12 @@ class Recorder {
       // what storing is judged on: the values times the factor (the loss times the loss scale), their magnitudes kept
       const stored = values.map((v) => v * meta.countsScaledBy!);
       stats.counts = measureTensor(stored, format, options, storageScales(stored, format, this.setup.plan.scaling)).counts;
+      // check judges the scaled loss in the accumulate format too, when it is another (src/risk/hazards.ts lossValue)
+      const accumulate = this.setup.accumulateFormat;
+      if (accumulate.name !== format.name) {
+        const held = roundOptionsFor(this.setup.roundOptions, accumulate);
+        stats.accumulateCounts = measureTensor(stored, accumulate, held, storageScales(stored, accumulate, this.setup.plan.scaling)).counts;
+      }
     }
     this.stats.set(meta.id, { meta, stats });
   }
@@ -299,8 +307,8 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
   }
   for (let i = 0; i < gradient.length; i++) gradient[i] = gradient[i]! * factor;
   if (recorder.active) {
-    // the loss is judged as check's loss-value rule judges it: times the loss scale, in the activation format
-    // (src/risk/hazards.ts lossValue); its magnitudes stay the loss's own, which the prediction gives
+    // the loss is judged as check's loss-value rule judges it: times the loss scale, in the activation format and the
+    // accumulate format (src/risk/hazards.ts lossValue); its magnitudes stay the loss's own, which the prediction gives
     recorder.measure({ id: "loss/loss", layer: "loss", role: "loss", slot: "activations", shape: [1], countsScaledBy: setup.lossScale }, Float64Array.of(value));
     const meta = { layer: last.name, role: "activation-gradient" as const, slot: "gradients" as const, shape: lastShape };
     if (targetMask !== undefined) {
@@ -537,6 +545,7 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
     roundOptions,
     round: options.round ?? true,
     accumulate: options.round === false ? undefined : accumulator(accumulateFormat, roundOptions),
+    accumulateFormat,
     lossScale,
     microBatches: Math.min(wanted, cap),
     wantedMicroBatches: wanted,

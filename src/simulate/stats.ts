@@ -99,21 +99,30 @@ export function medianStats(draws: readonly TensorStats[]): TensorStats {
   if (first === undefined) throw new RangeError("medianStats needs at least one draw");
   if (draws.length === 1) return first;
   const pick = (f: (s: TensorStats) => number): number => median(draws.map(f));
-  const counts: FormatCounts = {
-    format: first.counts.format,
-    flushed: pick((s) => s.counts.flushed),
-    subnormal: pick((s) => s.counts.subnormal),
-    overflowed: pick((s) => s.counts.overflowed),
-    saturated: pick((s) => s.counts.saturated),
-    nonFinite: pick((s) => s.counts.nonFinite),
-  };
-  if (first.counts.clipped !== undefined) counts.clipped = pick((s) => s.counts.clipped ?? 0);
-  return {
+  const stats: TensorStats = {
     elements: first.elements,
     zeroFraction: pick((s) => s.zeroFraction),
     rms: pick((s) => s.rms),
     max: pick((s) => s.max),
     quantiles: [0, 1, 2, 3, 4].map((i) => pick((s) => s.quantiles[i]!)) as TensorStats["quantiles"],
-    counts,
+    counts: medianCounts(draws.map((s) => s.counts)),
   };
+  if (first.accumulateCounts !== undefined) stats.accumulateCounts = medianCounts(draws.map((s) => s.accumulateCounts!));
+  return stats;
+}
+
+/** Field-wise median of one format's counts over draws (at least one). */
+function medianCounts(draws: readonly FormatCounts[]): FormatCounts {
+  const first = draws[0]!;
+  const pick = (f: (c: FormatCounts) => number): number => median(draws.map(f));
+  const counts: FormatCounts = {
+    format: first.format,
+    flushed: pick((c) => c.flushed),
+    subnormal: pick((c) => c.subnormal),
+    overflowed: pick((c) => c.overflowed),
+    saturated: pick((c) => c.saturated),
+    nonFinite: pick((c) => c.nonFinite),
+  };
+  if (first.clipped !== undefined) counts.clipped = pick((c) => c.clipped ?? 0);
+  return counts;
 }

@@ -102,6 +102,11 @@ export interface TensorStats {
   /** quantiles of the nonzero magnitudes: 1%, 10%, 50%, 90%, 99% */
   quantiles: [number, number, number, number, number];
   counts: FormatCounts;
+  /**
+   * the loss only, when the plan accumulates in another format than its activations': the counts of the loss times the
+   * loss scale held in the accumulate format, where check's loss-value rule judges it too (and can say "fails")
+   */
+  accumulateCounts?: FormatCounts;
 }
 
 /** One measured tensor: its place in the step and its statistics, per draw and as the median over draws. */
@@ -113,7 +118,8 @@ export interface MeasuredTensor {
   shape: number[];
   /**
    * the loss only: its format counts are of the loss times this factor (the loss scale), the value check's loss-value
-   * rule judges stored in the activation format; its magnitudes (rms, max, quantiles) are of the loss itself
+   * rule judges stored in the activation format (and in the accumulate format: `accumulateCounts`); its magnitudes
+   * (rms, max, quantiles) are of the loss itself
    */
   countsScaledBy?: number;
   /** field-wise median over draws */

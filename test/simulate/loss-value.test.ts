@@ -86,3 +86,48 @@ describe("simulate's report of the scaled loss", () => {
     expect(json.tensors.find((t) => t.id === "loss/loss")?.countsScaledBy).toBe(1024);
   });
 });
+
+// activations in binary32, the loss summed in binary16: check's loss-value rule judges the scaled loss in both formats
+// (src/risk/hazards.ts lossValue) and, in the accumulate format, can say "fails"
+const accumulating = (accumulate: string, lossScale: string) =>
+  summed("binary32", lossScale).replace("  accumulate: binary32", `  accumulate: ${accumulate}`);
+
+describe("simulate counts the scaled loss in the accumulate format too, as check judges it there", () => {
+  it("a summed loss that overflows a binary16 accumulator once scaled is counted there, and sets the exit code as check's fails", () => {
+    const s = spec(accumulating("binary16", "1024"));
+    const { result, row, loss } = lossRow(s);
+    // 64 examples · ln 10 ≈ 147 (common practice) fits binary16; 1024 times it passes 65504 (IEEE 754-2019 Table 3.5)
+    expect(loss).toBeLessThan(65504);
+    expect(1024 * loss).toBeGreaterThan(65504);
+    const finding = check(s).formats.find((f) => f.format === "binary16")?.findings.find((x) => x.kind === "loss-value-overflow");
+    expect(finding?.severity).toBe("fails");
+    // binary32 holds it (its largest finite is about 3.4e38, IEEE 754-2019 Table 3.5): nothing in the activation format
+    expect(row.median.counts.format).toBe("binary32");
+    expect(row.median.counts.overflowed).toBe(0);
+    expect(row.median.accumulateCounts).toMatchObject({ format: "binary16", overflowed: 1 });
+    expect(simulatedFinding(row.median.accumulateCounts!)).toBe(true);
+    expect(simulationExitCode(result)).toBe(1);
+  });
+
+  it("a loss that a binary16 accumulator holds once scaled is not counted; an accumulate format equal to the activations' is not counted twice", () => {
+    const held = lossRow(spec(accumulating("binary16", "64")));
+    // 64 · 147 ≈ 9,400 < 65504
+    expect(64 * held.loss).toBeLessThan(65504);
+    expect(held.row.median.accumulateCounts).toMatchObject({ format: "binary16", overflowed: 0, saturated: 0, nonFinite: 0 });
+    expect(simulationExitCode(held.result)).toBe(0);
+    // check judges the loss once when both formats are the same (the activation format, at risk at most)
+    expect(lossRow(spec(accumulating("binary16", "1024").replace("activations: binary32", "activations: binary16"))).row.median.accumulateCounts).toBeUndefined();
+  });
+
+  it("text lists the sum on a line of its own under the loss; JSON has it under measured.accumulateCounts", async () => {
+    const { renderSimulationJson, renderSimulationText } = await import("../../src/cli/simulate.js");
+    const report = { result: runSimulation(spec(accumulating("binary16", "1024")), { round: false }) };
+    const lines = renderSimulationText(report).split("\n");
+    const at = lines.findIndex((l) => l.startsWith("loss/loss "));
+    expect(at).toBeGreaterThan(0);
+    expect(lines[at + 1]).toMatch(/^loss\/loss \(accumulate\)\s+binary16\s.*100(\.0)?%$/);
+    expect(lines.join("\n")).toMatch(/summed in the accumulate format, binary16, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
+    const json = JSON.parse(renderSimulationJson(report)) as { tensors: { id: string; measured: { accumulateCounts?: { overflowed: number } } }[] };
+    expect(json.tensors.find((t) => t.id === "loss/loss")?.measured.accumulateCounts?.overflowed).toBe(1);
+  });
+});

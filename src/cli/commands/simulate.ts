@@ -26,7 +26,9 @@ export const register: RegisterCommand = (program) => {
     .addHelpText(
       "after",
       "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input. " +
-        "The loss is listed with the shares of the loss times the loss scale, as check judges it, but is not stored and sets no exit code.",
+        "The loss is listed with the shares of the loss times the loss scale, as check judges it, in the activation format (not " +
+        "stored: no exit code) and, when the plan accumulates in another format, summed in that one (an overflow there exits 1, " +
+        "as check says it fails).",
     )
     .action(lazyAction(() => import("../simulate.js").then((m) => m.runSimulate)));
 };
