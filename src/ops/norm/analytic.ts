@@ -2,15 +2,16 @@
  * Layer norm, RMS norm and batch norm: the output's second moment is reset to gain²·var/(var + ε) (the
  * definitions of the layers: Ba et al. 2016; Zhang & Sennrich 2019; Ioffe & Szegedy 2015), which also resets the
  * finite-width spread (Hanin & Rolnick 2018). Backward, the gradient is multiplied by gain/√(var + ε), the
- * Jacobian's scale; the projection that removes the mean and the radial direction takes 1 or 2 of n dimensions
- * and is left out. Its spread gains the forward spread of 1/√var.
+ * Jacobian's scale, and its second moment by e^V more for a layer or RMS norm: each sample divides by its own
+ * statistic, whose log spreads by the input's V (see sampleSpread). The projection that removes the mean and the
+ * radial direction takes 1 or 2 of n dimensions and is left out. Its spread gains the forward spread of 1/√var.
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
-import { NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -26,6 +27,7 @@ export interface NormStash {
 }
 
 const SOURCE = "normalisation resets the scale to the gain (layer definitions; SCIENCE.md §2.7)";
+const SPREAD_SOURCE = "each sample divided by its own log-normal statistic, E[1/s²] = e^V/E[s²] (Hanin & Nica 2019; own algebra)";
 
 /** Elements summed into one statistic: features of a position (layer/rms norm), or batch × pixels of a channel (batch norm). */
 export function normTerms(layer: GraphLayer, batch: number): number {
@@ -125,6 +127,7 @@ export const normRule: AnalyticRule<NormStash> = {
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: NormStash, output: Gradient): BackwardResult {
     const ratio = stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
+    const spread = sampleSpread(layer, stash);
     const positions = positionCount(layer.input);
     const terms = ctx.batch * positions;
     // the loss's curvature through the gain: δ_i holds M_ii·g·x̂_i, so Σ_t x̂_i·δ_i gains N·g·E[x̂²]·M_ii in every
@@ -159,7 +162,7 @@ export const normRule: AnalyticRule<NormStash> = {
       });
     }
     const input: Gradient = {
-      q: ratio * output.q,
+      q: ratio * spread * output.q,
       zeroFraction: layer.family === "rms-norm" ? output.zeroFraction : 0,
       shape: "gaussian",
       logVar: output.logVar + (layer.family === "batch-norm" ? 0 : stash.input.logVar),
@@ -171,7 +174,8 @@ export const normRule: AnalyticRule<NormStash> = {
     }
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
-    else if (output.shared !== undefined) input.shared = ratio * output.shared;
+    // two samples divide by their own s: E[1/s]² = E[1/s²]·e^(−V/4) for log-normal s² (as in sampleSpread)
+    else if (output.shared !== undefined) input.shared = ratio * spread ** 0.75 * output.shared;
     // positions keep what they share, less (batch norm) the part every sample shares, which the batch mean removes
     const sampleShare = layer.family === "batch-norm" ? Math.max(sampleCorrelationOf(output), 0) : 0;
     input.positionCorrelation = sampleShare < 1 ? Math.max(positionCorrelationOf(output) - sampleShare, 0) / (1 - sampleShare) : 0;
@@ -182,12 +186,37 @@ export const normRule: AnalyticRule<NormStash> = {
     }
     return {
       input,
-      factors: ctx.ledger ? [factor(ratio, () => `${layer.family}: gain²/(var + ε) = ${fmt(ratio)}`, SOURCE)] : NO_FACTORS,
+      factors: ctx.ledger
+        ? [
+            factor(
+              ratio * spread,
+              () => `${layer.family}: gain²/(var + ε)${spread > 1 ? `·E[(var + ε)/s²] = ${fmt(ratio)}·${fmt(spread)}` : ` = ${fmt(ratio)}`}`,
+              spread > 1 ? SPREAD_SOURCE : SOURCE,
+            ),
+          ]
+        : NO_FACTORS,
       inner: [],
       weightGradients,
     };
   },
 };
+
+/**
+ * E[1/(s² + ε)]·(var + ε) for a layer or RMS norm, whose backward divides each sample by its own statistic s² (the
+ * input's per-sample mean square): ln s² is N(−V/2, V) about its mean with V the input's finite-width spread (Hanin &
+ * Nica 2019; SCIENCE.md §2.6), so E[1/s²] = e^V/E[s²], and ε shrinks the spread of ln(s² + ε) by ρ = var/(var + ε)
+ * (own algebra: the log-normal's negative moment, and d ln(s² + ε)/d ln s² = ρ). 1 for batch norm, whose statistic sums
+ * the whole batch. The curvature's part does not gain it: its δ·xᵀ holds x̂·x̂ᵀ, in which s cancels.
+ */
+function sampleSpread(layer: GraphLayer, stash: NormStash): number {
+  if (layer.family === "batch-norm") return 1;
+  const rho = stash.normalisedSecond;
+  // a dense output's V counts its batch rms (2·D/width, D → 1/batch for unrelated samples); one sample's statistic is
+  // one Gaussian quadratic form of the layer's width, D = 1 (the dense rule's own algebra for a batch of one)
+  const fresh = stash.input.fresh;
+  const perSample = stash.input.logVar + (fresh !== undefined && fresh.width > 0 ? Math.max(LINEAR_KAPPA - fresh.kappa, 0) / fresh.width : 0);
+  return Math.exp(rho * rho * Math.max(perSample, 0));
+}
 
 /**
  * Curvature at the input of a layer or RMS norm, y = g·z/√(s² + ε) per position, for the weights below it: what they
