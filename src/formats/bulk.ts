@@ -4,7 +4,7 @@
  * fields read through a Uint32Array view of the data, lookup tables for the 8- and 16-bit codes.
  */
 import type { Format } from "./model.js";
-import { binadeOf, checkFormatRecord, decode, encodeRounded, formatTables, nanCode, roundDetailed, roundTo, type RoundOptions } from "./round.js";
+import { binadeOf, checkFormatRecord, decode, encodeRounded, formatTables, nanCode, roundDetailed, roundTo, type FormatTables, type RoundOptions } from "./round.js";
 
 /**
  * Typed arrays of values the kernels accept.
@@ -44,8 +44,9 @@ function overflowValue(format: Format, options: RoundOptions | undefined): numbe
  * @example roundArrayInPlace(FORMATS.bfloat16, Float64Array.of(1 / 3))[0] // => 0.333984375
  */
 export function roundArrayInPlace<T extends FloatArray>(format: Format, data: T, options?: RoundOptions): T {
-  checkFormatRecord(format);
-  return roundInto(format, data, data, options);
+  // the entry points' one check of the format: formatTables checks an argument when it builds its tables (a name given
+  // for the record is a TypeError naming it), and only records have tables; the kernels take the tables from here
+  return roundInto(format, formatTables(format), data, data, options);
 }
 
 /**
@@ -54,13 +55,13 @@ export function roundArrayInPlace<T extends FloatArray>(format: Format, data: T,
  * @example roundArray(FORMATS.binary16, Float64Array.of(65519, 65520)) // => Float64Array [65504, Infinity]
  */
 export function roundArray<T extends FloatArray, U extends FloatArray = T>(format: Format, source: T, options?: RoundOptions, target?: U): U {
-  checkFormatRecord(format);
+  const tables = formatTables(format);
   const out = (target ?? (source instanceof Float64Array ? new Float64Array(source.length) : new Float32Array(source.length))) as U;
   if (out.length < source.length) throw new RangeError(`target holds ${out.length} values; ${source.length} given`);
-  return roundInto(format, source, out, options);
+  return roundInto(format, tables, source, out, options);
 }
 
-function roundInto<U extends FloatArray>(format: Format, source: FloatArray, target: U, options: RoundOptions | undefined): U {
+function roundInto<U extends FloatArray>(format: Format, tables: FormatTables, source: FloatArray, target: U, options: RoundOptions | undefined): U {
   const mode = options?.mode ?? "nearest-even";
   if (mode !== "nearest-even" || !LITTLE_ENDIAN) {
     for (let i = 0; i < source.length; i++) target[i] = roundTo(format, source[i] as number, options);
@@ -68,20 +69,20 @@ function roundInto<U extends FloatArray>(format: Format, source: FloatArray, tar
   }
   const flush = options?.flushSubnormals === true;
   const overflowTo = overflowValue(format, options);
-  if (source instanceof Float64Array) roundFloat64Nearest(format, source, target, overflowTo, flush);
-  else roundFloat32Nearest(format, source, target, overflowTo, flush);
+  if (source instanceof Float64Array) roundFloat64Nearest(format, tables, source, target, overflowTo, flush);
+  else roundFloat32Nearest(format, tables, source, target, overflowTo, flush);
   return target;
 }
 
 // Two kernels per source type, so that each loop sees one target type (keeps V8's element access monomorphic).
-function roundFloat64Nearest(format: Format, source: Float64Array, target: FloatArray, overflowTo: number, flush: boolean): void {
-  if (target instanceof Float64Array) roundFloat64To64(format, source, target, overflowTo, flush);
-  else roundFloat64To32(format, source, target, overflowTo, flush);
+function roundFloat64Nearest(format: Format, tables: FormatTables, source: Float64Array, target: FloatArray, overflowTo: number, flush: boolean): void {
+  if (target instanceof Float64Array) roundFloat64To64(format, tables, source, target, overflowTo, flush);
+  else roundFloat64To32(format, tables, source, target, overflowTo, flush);
 }
 
-function roundFloat64To64(format: Format, source: Float64Array, target: Float64Array, overflowTo: number, flush: boolean): void {
+function roundFloat64To64(format: Format, tables: FormatTables, source: Float64Array, target: Float64Array, overflowTo: number, flush: boolean): void {
   const words = new Uint32Array(source.buffer, source.byteOffset, source.length * 2);
-  const magic = formatTables(format).magic64;
+  const magic = tables.magic64;
   const max = format.maxFinite;
   // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
   const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
@@ -99,9 +100,9 @@ function roundFloat64To64(format: Format, source: Float64Array, target: Float64A
   }
 }
 
-function roundFloat64To32(format: Format, source: Float64Array, target: Float32Array, overflowTo: number, flush: boolean): void {
+function roundFloat64To32(format: Format, tables: FormatTables, source: Float64Array, target: Float32Array, overflowTo: number, flush: boolean): void {
   const words = new Uint32Array(source.buffer, source.byteOffset, source.length * 2);
-  const magic = formatTables(format).magic64;
+  const magic = tables.magic64;
   const max = format.maxFinite;
   // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
   const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
@@ -116,9 +117,9 @@ function roundFloat64To32(format: Format, source: Float64Array, target: Float32A
   }
 }
 
-function roundFloat32Nearest(format: Format, source: Float32Array, target: FloatArray, overflowTo: number, flush: boolean): void {
+function roundFloat32Nearest(format: Format, tables: FormatTables, source: Float32Array, target: FloatArray, overflowTo: number, flush: boolean): void {
   const words = new Uint32Array(source.buffer, source.byteOffset, source.length);
-  const magic = formatTables(format).magic32;
+  const magic = tables.magic32;
   const max = format.maxFinite;
   // results below this become a signed zero: the smallest normal when flushing, else only exact zeros
   const zeroBelow = flush ? format.minNormal : Number.MIN_VALUE;
@@ -192,18 +193,18 @@ export function emptyClassCounts(): ClassCounts {
  * @example countClasses(FORMATS.binary16, Float64Array.of(0, 1e-8, 1, 7e4)).flushed // => 1
  */
 export function countClasses(format: Format, data: FloatArray, options?: RoundOptions, into?: ClassCounts): ClassCounts {
-  checkFormatRecord(format);
+  const tables = formatTables(format);
   const counts = into ?? emptyClassCounts();
   const mode = options?.mode ?? "nearest-even";
   if (mode !== "nearest-even" || !LITTLE_ENDIAN) countGeneric(format, data, options, counts);
-  else if (data instanceof Float64Array) countFloat64Nearest(format, data, options, counts);
-  else countFloat32Nearest(format, data, options, counts);
+  else if (data instanceof Float64Array) countFloat64Nearest(format, tables, data, options, counts);
+  else countFloat32Nearest(format, tables, data, options, counts);
   return counts;
 }
 
-function countFloat64Nearest(format: Format, data: Float64Array, options: RoundOptions | undefined, c: ClassCounts): void {
+function countFloat64Nearest(format: Format, tables: FormatTables, data: Float64Array, options: RoundOptions | undefined, c: ClassCounts): void {
   const words = new Uint32Array(data.buffer, data.byteOffset, data.length * 2);
-  const magic = formatTables(format).magic64;
+  const magic = tables.magic64;
   const binades = c.binades;
   const max = format.maxFinite;
   const minNormal = format.minNormal;
@@ -259,9 +260,9 @@ function countFloat64Nearest(format: Format, data: Float64Array, options: RoundO
   c.minNonzeroAbs = minAbs;
 }
 
-function countFloat32Nearest(format: Format, data: Float32Array, options: RoundOptions | undefined, c: ClassCounts): void {
+function countFloat32Nearest(format: Format, tables: FormatTables, data: Float32Array, options: RoundOptions | undefined, c: ClassCounts): void {
   const words = new Uint32Array(data.buffer, data.byteOffset, data.length);
-  const magic = formatTables(format).magic32;
+  const magic = tables.magic32;
   const binades = c.binades;
   const max = format.maxFinite;
   const minNormal = format.minNormal;
@@ -497,7 +498,7 @@ const ENCODE_BLOCK_WORDS = new Uint32Array(ENCODE_BLOCK.buffer);
  * @example encodeArray(FORMATS.binary16, Float64Array.of(1, 65504)) // => Uint16Array [0x3c00, 0x7bff]
  */
 export function encodeArray<C extends CodeArray = CodeArray>(format: Format, data: FloatArray, options?: RoundOptions, codes?: C): C {
-  checkFormatRecord(format);
+  const tables = formatTables(format);
   if (format.bits !== 16 && format.bits !== 8) {
     throw new RangeError(`${format.name} codes are ${format.bits} bits; encodeArray handles 16- and 8-bit formats`);
   }
@@ -517,7 +518,7 @@ export function encodeArray<C extends CodeArray = CodeArray>(format: Format, dat
   for (let start = 0; start < data.length; start += rounded.length) {
     const end = Math.min(start + rounded.length, data.length);
     const block = rounded.subarray(0, end - start);
-    roundArray(format, data.subarray(start, end), options, block);
+    roundInto(format, tables, data.subarray(start, end), block, options);
     for (let j = 0; j < block.length; j++) {
       const r = block[j] as number;
       let code: number;
