@@ -137,6 +137,14 @@ export function lossSeed(
   const gradient: Gradient = { q: seed.q, zeroFraction: 0, shape: "gaussian", logVar: seed.logVar, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, seed.q) };
   // the samples share only the outputs' shared part, so that part keeps the outputs' own spread (own algebra)
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = output.sharedLogVar;
+  if (output.correlationSquare !== undefined && positions === 1 && V > 0 && seed.q > 0) {
+    // two samples' residual vectors y − t of width m with per-feature correlation ρ: E[(a·b)²]/E[‖a‖²‖b‖²] =
+    // (1 + (m + 1)ρ²)/(m + 2ρ²) (Isserlis; exact at m = 1, ρ = 0 and ρ = 1)
+    const rho = Math.min((gradient.shared ?? 0) / seed.q, 1);
+    gradient.cosineSquare = (1 + (width + 1) * rho * rho) / (width + 2 * rho * rho);
+    // the seed's share e of the output's own spread: ln E[δ²] = e·ln‖y‖² + what the targets add (the delta method)
+    gradient.coupling = { elasticity: Math.sqrt(seed.logVar / V), budget: V };
+  }
   // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
   if (endLoss === undefined) gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
   return {

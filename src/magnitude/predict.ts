@@ -464,7 +464,11 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens
   // and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
-  if (input.sharedLogVar !== undefined && layer.family !== "dense" && layer.family !== "activation") delete input.sharedLogVar;
+  if (layer.family !== "dense" && layer.family !== "activation") {
+    if (input.sharedLogVar !== undefined) delete input.sharedLogVar;
+    if (input.cosineSquare !== undefined) delete input.cosineSquare;
+    if (input.coupling !== undefined) delete input.coupling;
+  }
 }
 
 /**
@@ -580,7 +584,7 @@ function assumptions(spec: NetworkSpec): string[] {
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
     "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
     "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
-    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
+    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; a gradient whose loss seed moves with the output (elasticity e) meets the output's own spread again in the transposed maps below it, 2e times what they add (at most the output's spread); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];

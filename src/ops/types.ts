@@ -95,6 +95,14 @@ export interface Gradient {
   fresh?: { width: number; kappa: number };
   /** as Signal.sharedLogVar: variance over draws of ln of the part the samples share, where it differs from logVar */
   sharedLogVar?: number;
+  /** as Signal.correlationSquare: E[c²] of two samples' gradient vectors' cosine (one position per sample) */
+  cosineSquare?: number;
+  /**
+   * how much of the network output's own draw-to-draw spread this gradient's scale carries: e = d ln E[δ²]/d ln ‖y‖²
+   * of the loss seed, and the output's ln-variance not yet met again by the transposed maps below (`budget`). Set by
+   * the loss seed, carried by dense layers and pointwise activations only
+   */
+  coupling?: { elasticity: number; budget: number };
   /**
    * E[δ_n·δ_m] for two different samples of the batch (elementwise, averaged): the part of the gradient the samples
    * share. It makes the weight gradient's batch sum partly coherent. Absent: 0.

@@ -121,13 +121,16 @@ ${WIDE_PLAN}layers:
 });
 
 describe("the curvature through many layers", () => {
-  it("a deep narrow tanh stack: the pulled-back rows stay within the bound of a Gauss–Newton matrix (up to 3.98 binades above the simulation before)", () => {
+  it("a deep narrow tanh stack: the pulled-back rows stay within the bound of a Gauss–Newton matrix (up to 3.98 binades above the simulation before), and the gradient meets the output's own spread again (up to 3.04 binades above before, 101 draws)", () => {
     // an invented glacier-melt surrogate: 80 tanh layers of width 24, one output, squared error with small targets (the
     // output's own value dominates the loss gradient). Counting the rows' squares as independent entries compounded
-    // through the narrow layers; a positive semidefinite M has M_ij² ≤ M_ii·M_jj (Cauchy–Schwarz). Left, and held
-    // here to its size: predictions still up to 2 binades above the measurement in the lower layers (Φ'·M·Φ' leaves
-    // out the E[φ''φ] of a curved activation's own response) and below it in others (the width-1 output's seed is
-    // predicted at its median draw)
+    // through the narrow layers; a positive semidefinite M has M_ij² ≤ M_ii·M_jj (Cauchy–Schwarz). Then the gradient's
+    // draw-to-draw spread: δ_ℓ = k·(y − t)·b_ℓ with y = b_ℓ·x_ℓ, so the seed's e·ln‖y‖² holds ln‖b_ℓ‖², the very
+    // spread the transposed maps add (Var 2e·V_b more; a Monte Carlo of 400 draws measures ln-variances up to 12.2 where
+    // the rules without it gave 8.9): the predictions sat 2–3 binades above the measurement from the middle of the stack
+    // down. Left: the middle layers' gradients and bias gradients still 0.8–1.5 binades above the simulation. Not the
+    // curved activation's E[φ''φ] (the pre-activations' q is below 0.05 from layer 10 up, where E[φ''φ] ≈ −2q); the
+    // median of a spread this wide (V ≈ 6–17) is where the log-normal law is least exact
     const yaml = `name: meltwater-deep
 description: invented
 input: { features: 12 }
@@ -141,11 +144,16 @@ ${WIDE_PLAN}layers:
       - tanh
   - { type: dense, name: out, width: 1 }
 `;
-    const d = measuredDifferences(yaml, "meltwater-deep", /gradient/);
+    // a spread of ~2 binades per draw: 5 draws cannot resolve a binade, 101 resolve ~0.2
+    const d = measuredDifferences(yaml, "meltwater-deep", /gradient/, 101);
     expect(d.size).toBeGreaterThan(300);
-    for (const [id, value] of d) expect(value, `${id}: ${value.toFixed(2)}`).toBeGreaterThan(-2.2);
+    for (const [id, value] of d) {
+      expect(value, `${id}: ${value.toFixed(2)}`).toBeGreaterThan(-1.8);
+      expect(value, `${id}: ${value.toFixed(2)}`).toBeLessThan(0.8);
+    }
     const values = [...d.values()];
-    expect(values.reduce((sum, v) => sum + Math.abs(v), 0) / values.length).toBeLessThan(1.3);
+    // 1.90 before, 0.59 after
+    expect(values.reduce((sum, v) => sum + Math.abs(v), 0) / values.length).toBeLessThan(0.75);
   });
 });
 

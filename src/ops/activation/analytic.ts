@@ -323,6 +323,10 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
+  if (output.coupling !== undefined) gradient.coupling = output.coupling;
+  // φ' gates two samples' gradients alike where their pre-activations agree: the cosine scales by E[φ'(u)φ'(v)]/E[φ'²]
+  // (φ' taken as independent of δ, as the backward rule does)
+  if (output.cosineSquare !== undefined && derivativeSecond > 0) gradient.cosineSquare = Math.min((sampleCross / derivativeSecond) ** 2 * output.cosineSquare, 1);
   let ratio = derivativeSecond;
   if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
   if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);

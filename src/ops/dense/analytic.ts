@@ -94,6 +94,28 @@ function batchSpread(output: Signal, input: Signal, batch: number, a: number, b:
 }
 
 /**
+ * batchSpread for a transposed map: Σ_n ‖Wᵀδ_n‖² has Var/E² = 2·D/width with D from the gradient vectors' cosines,
+ * which the map keeps on average and spreads by Fisher's (1 − c²)²/width. A gradient that carries e of the output's
+ * own spread (Gradient.coupling) meets that spread again here: the output is b·x for the very vector b = Wᵀ·(…) whose
+ * norm this map sets (a width-1 output, where b̂ is independent of ‖b‖ for Gaussian weights), so Var(e·ln‖y‖² + ln‖b‖²)
+ * gains 2e·Var(ln‖b‖²), at most the output's ln-variance in all (Cauchy–Schwarz) (own algebra)
+ */
+function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, width: number): void {
+  const s = output.cosineSquare as number;
+  const D = batch > 1 ? 1 / batch + (1 - 1 / batch) * s : 1;
+  const own = (LINEAR_KAPPA * D) / width;
+  input.logVar = output.logVar + own;
+  input.fresh = { width, kappa: LINEAR_KAPPA * D };
+  input.cosineSquare = Math.min(s + ((1 - s) * (1 - s)) / width, 1);
+  const coupling = output.coupling;
+  if (coupling !== undefined) {
+    const met = Math.min(own, coupling.budget);
+    input.logVar += 2 * coupling.elasticity * met;
+    input.coupling = { elasticity: coupling.elasticity, budget: coupling.budget - met };
+  }
+}
+
+/**
  * ln-variance over draws of a sum over the batch of terms with moments `delta` (times an input with none of its own):
  * the part beyond the independent terms' (`independent` of `sum`) is what the samples share, with the shared part's
  * spread; interpolated by that share, exact when either part is the whole (own algebra)
@@ -156,6 +178,7 @@ export function linearBackward(
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
+  if (layer.family === "dense" && output.cosineSquare !== undefined) backwardBatchSpread(input, output, ctx.batch, inWidth);
   if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar + (input.logVar - output.logVar);
   let selfRatio = 1;
   if (curvature !== undefined && layer.family === "dense") {
