@@ -273,7 +273,8 @@ describe("attention: pair correlations of the gradient, against its float64 kern
       // rms of the query and key gradients, in binades. Query: pairs of keys add 1/D through W_v and W_k (0.28 binade low
       // without, full attention). Key: two rows of a column pair by ρ_o·ρ_q, the head gradients' and queries' position
       // correlations (0.79 binade low without, full attention with the gradient shared at every position). Both keep
-      // 1 − 1/n of the values' deviations in a row of n keys (0.4–0.5 binade high without, causal). The key gradient
+      // E[S + S² − 2Σp³] of the values' deviations in a row, S·(1 − 1/n) for these near-even rows of n keys (0.4–0.5
+      // binade high without the 1 − 1/n, causal). The key gradient
       // under a causal mask with rows paired (−0.20 binade) is the loosest: the row pairs there are taken at the
       // columns' mean weights
       const inner = (suffix: string): number => backward.inner.find((g) => g.suffix === suffix)!.gradient.q;
@@ -281,7 +282,7 @@ describe("attention: pair correlations of the gradient, against its float64 kern
       const key = log2Ratio(keyQ, inner("key")) / 2;
       expect(Math.abs(query), `query gradient rms: ${query.toFixed(2)} binades`).toBeLessThan(0.15);
       expect(Math.abs(key), `key gradient rms: ${key.toFixed(2)} binades`).toBeLessThan(0.25);
-      // the logits' gradient p_ij·δo_i·(v_j − v̄_i) keeps the same 1 − 1/n of each row (within 0.04 binade here)
+      // the logits' gradient p_ij·δo_i·(v_j − v̄_i) keeps the same share of each row (within 0.04 binade here)
       const logits = log2Ratio(logitQ, inner("logits")) / 2;
       expect(Math.abs(logits), `logits gradient rms: ${logits.toFixed(2)} binades`).toBeLessThan(0.15);
     });
