@@ -3,9 +3,9 @@
  * ending in a row, never in an exception. The reading and the judging are passed in, so the worker
  * thread, the library and the tests share this code.
  */
-import { formatSpecIssue, formatSpecPath, MAX_SPEC_BYTES, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
+import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
+import { readSpecFile } from "../spec/parse.js";
 import type { ErrorPosition, RowError, SpecSummary } from "./types.js";
-import { decodeSpecBytes } from "../spec/text.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
 
 /** What a worker is asked to evaluate. */
@@ -68,19 +68,6 @@ function issuePosition(issue: SpecIssue): ErrorPosition {
   return issue.line > 0 ? { file: issue.file, line: issue.line, column: issue.column } : { file: issue.file };
 }
 
-function readError(file: string, error: unknown): TaskFailure {
-  const code = (error as { code?: unknown } | null)?.code;
-  const words: Record<string, string> = {
-    ENOENT: "no such file",
-    EACCES: "permission denied",
-    EPERM: "permission denied",
-    EISDIR: "not a file",
-    ERR_FS_FILE_TOO_LARGE: "the file is too large",
-  };
-  if (typeof code === "string") return inputError(`${file}: ${words[code] ?? `cannot read the file (${code})`}`, { file });
-  return { status: "error", error: { kind: "internal", message: `${file}: ${error instanceof Error ? error.message : String(error)}` } };
-}
-
 /**
  * An error that names spec paths (check's CheckInputError carries `issues: { path, message }[]`), as
  * positioned issues; undefined for any other error.
@@ -109,27 +96,18 @@ export async function evaluateTask(task: SpecTask, hooks: EvaluateHooks): Promis
 }
 
 /**
- * The text of a spec file (without a byte-order mark), or the input error that stops it: not a spec's extension,
- * unreadable, or above the size limit. Never throws for those.
+ * The text of a spec file (without a byte-order mark), or the input error that stops it, as every command reads a spec
+ * (src/spec's readSpecFile: not a spec's extension, missing, a folder, above the size limit, not UTF-8); `readText`
+ * replaces the file system. An error from the reading that is not the file's (no `code`) is an internal error. Never
+ * throws.
  */
-export async function readSpecText(file: string, readText: EvaluateHooks["readText"]): Promise<string | TaskFailure> {
-  if (!/\.(ya?ml|json)$/i.test(file)) {
-    return inputError(`${file}: a spec is a .yaml, .yml or .json file`, { file });
-  }
-  let read: string | Uint8Array;
+export async function readSpecText(file: string, readText?: EvaluateHooks["readText"]): Promise<string | TaskFailure> {
   try {
-    read = await readText(file);
+    const read = await readSpecFile(file, readText);
+    return read.ok ? read.text : { status: "error", error: issuesError([read.issue]) };
   } catch (error) {
-    return readError(file, error);
+    return { status: "error", error: { kind: "internal", message: `${file}: ${error instanceof Error ? error.message : String(error)}` } };
   }
-  if (read.length > MAX_SPEC_BYTES) {
-    return inputError(`${file}: the file is above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`, { file });
-  }
-  if (typeof read !== "string") {
-    const decoded = decodeSpecBytes(read, file);
-    return decoded.ok ? decoded.text : { status: "error", error: issuesError([decoded.issue]) };
-  }
-  return read.charCodeAt(0) === 0xfeff ? read.slice(1) : read;
 }
 
 /**

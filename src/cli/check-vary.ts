@@ -1,4 +1,3 @@
-import { readFile } from "node:fs/promises";
 import { evaluateText, readSpecText } from "../batch/evaluate.js";
 import { textVarier } from "../batch/vary.js";
 import { check, loadSpecMeasurements, measuredIssues, measuredNetwork, type CheckAnswer, type CheckAnswerOptions } from "../check.js";
@@ -23,7 +22,8 @@ export async function checkVariants(
 ): Promise<{ variant: string; result: CheckAnswer }[]> {
   const variants = variantsFromOptions(options);
   const checkOptions: CheckAnswerOptions = judgeOptions(flags);
-  const text = await readSpecText(path, (file) => readFile(file));
+  // read as a plain check reads a spec (the same messages for a missing file, a folder, a wrong extension)
+  const text = await readSpecText(path);
   if (typeof text !== "string") {
     // a file that cannot be read is no variant's problem: said once, as a plain check says it
     process.stderr.write(`${text.error.message}\n`);

@@ -241,42 +241,84 @@ function dedupe(issues: SpecIssue[]): SpecIssue[] {
 
 const FOLDER_MESSAGE = "a folder, not a spec file: a spec is one .yaml, .yml or .json file (headroom batch checks every spec in a folder)";
 
+/** What reading a spec file gives: its text (without a byte-order mark), or the issue that stops it. */
+export type SpecFileText = { ok: true; text: string } | { ok: false; issue: SpecIssue };
+
+/**
+ * How a spec file's bytes (or text) are read when not from the file system as loadSpec reads them (a batch worker's
+ * synchronous read, a test's files in memory); a thrown error with a `code` (ENOENT…) is an issue of the file.
+ */
+export type SpecFileRead = (path: string) => Promise<string | Uint8Array> | string | Uint8Array;
+
+function fileIssue(file: string, message: string): SpecFileText {
+  return { ok: false, issue: { file, line: 0, column: 0, path: "", message } };
+}
+
+function tooLarge(file: string, bytes: number): SpecFileText {
+  return fileIssue(file, `the file has ${bytes} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
+}
+
+/**
+ * The text of a spec file (.yaml, .yml or .json, at most 10 MiB, UTF-8, without a byte-order mark), or the issue that
+ * stops it, for every command and the batch workers alike. The file system is looked at first, so that a folder and
+ * a file above the limit are said without reading them; `read` replaces the reading (and that look). Never throws for
+ * a bad or missing file; an error without a `code` from the reading is thrown on.
+ */
+export async function readSpecFile(path: string, read?: SpecFileRead): Promise<SpecFileText> {
+  // one look at the path serves every answer below; a failed look is answered as the read would be
+  let info: Stats | undefined;
+  let statError: unknown;
+  if (read === undefined) {
+    try {
+      info = await stat(path);
+    } catch (error) {
+      statError = error;
+    }
+  }
+  // a folder given where a spec is expected: say so, not that it lacks an extension
+  if (info?.isDirectory()) return fileIssue(path, FOLDER_MESSAGE);
+  if (!/\.(ya?ml|json)$/i.test(path)) {
+    const extension = /\.[^./\\]*$/.exec(path)?.[0];
+    // a path with no extension that is not there at all is more likely a mistyped folder than a spec without extension
+    if (extension === undefined && read === undefined && info === undefined) return fileIssue(path, "no such file or folder");
+    return fileIssue(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
+  }
+  let content: string | Uint8Array;
+  try {
+    if (read !== undefined) {
+      content = await read(path);
+    } else {
+      if (info === undefined) throw statError;
+      if (!info.isFile()) return fileIssue(path, "not a file");
+      if (info.size > MAX_SPEC_BYTES) return tooLarge(path, info.size);
+      content = await readFile(path);
+    }
+  } catch (error) {
+    const code = (error as { code?: unknown } | null)?.code;
+    if (code === "ENOENT") return fileIssue(path, "no such file");
+    if (code === "EACCES" || code === "EPERM") return fileIssue(path, "permission denied");
+    if (code === "EISDIR") return fileIssue(path, FOLDER_MESSAGE);
+    // Node's own limit on a whole-file read (2 GiB), far above the spec's
+    if (code === "ERR_FS_FILE_TOO_LARGE") return fileIssue(path, `the file is above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
+    if (typeof code === "string") return fileIssue(path, `cannot read the file (${code})`);
+    throw error;
+  }
+  if (typeof content === "string") {
+    const bytes = Buffer.byteLength(content, "utf8");
+    if (bytes > MAX_SPEC_BYTES) return tooLarge(path, bytes);
+    return { ok: true, text: content.charCodeAt(0) === 0xfeff ? content.slice(1) : content };
+  }
+  if (content.length > MAX_SPEC_BYTES) return tooLarge(path, content.length);
+  const decoded = decodeSpecBytes(content, path);
+  return decoded.ok ? { ok: true, text: decoded.text } : { ok: false, issue: decoded.issue };
+}
+
 /**
  * Read a spec file (.yaml, .yml or .json, at most 10 MiB) and parse it. Never throws for a bad or missing
  * file: that too comes back as an issue; a path that is not a string is a TypeError.
  */
 export async function loadSpec(path: string): Promise<SpecResult> {
   if (typeof path !== "string") throw new TypeError(`loadSpec needs the path of a spec file, got ${path === null ? "null" : typeof path}`);
-  // one look at the path serves every answer below; a failed look is answered as the read would be
-  let info: Stats | undefined;
-  let statError: unknown;
-  try {
-    info = await stat(path);
-  } catch (error) {
-    statError = error;
-  }
-  // a folder given where a spec is expected: say so, not that it lacks an extension
-  if (info?.isDirectory()) return wholeFile(path, FOLDER_MESSAGE);
-  if (!/\.(ya?ml|json)$/i.test(path)) {
-    const extension = /\.[^./\\]*$/.exec(path)?.[0];
-    // a path with no extension that is not there at all is more likely a mistyped folder than a spec without extension
-    if (extension === undefined && info === undefined) return wholeFile(path, "no such file or folder");
-    return wholeFile(path, `${extension ? `unsupported extension "${extension}"` : "no file extension"}: a spec is a .yaml, .yml or .json file`);
-  }
-  try {
-    if (info === undefined) throw statError;
-    if (!info.isFile()) return wholeFile(path, "not a file");
-    if (info.size > MAX_SPEC_BYTES) {
-      return wholeFile(path, `the file has ${info.size} bytes, above the limit of ${MAX_SPEC_BYTES} bytes (10 MiB) for a spec`);
-    }
-    const decoded = decodeSpecBytes(await readFile(path), path);
-    return decoded.ok ? parseSpec(decoded.text, path) : { ok: false, issues: [decoded.issue] };
-  } catch (error) {
-    const code = (error as { code?: unknown }).code;
-    if (code === "ENOENT") return wholeFile(path, "no such file");
-    if (code === "EACCES" || code === "EPERM") return wholeFile(path, "permission denied");
-    if (code === "EISDIR") return wholeFile(path, FOLDER_MESSAGE);
-    if (typeof code === "string") return wholeFile(path, `cannot read the file (${code})`);
-    throw error;
-  }
+  const read = await readSpecFile(path);
+  return read.ok ? parseSpec(read.text, path) : { ok: false, issues: [read.issue] };
 }
