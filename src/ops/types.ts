@@ -159,6 +159,14 @@ export interface Curvature {
    * may then have negative eigenvalues, and a positive semidefinite matrix's bounds do not hold for it
    */
   indefinite?: boolean;
+  /**
+   * the part of M that a residual branch's seed adds for its skip, A = (α·q_x/q_F)·M·J̄ᵀ, which is not symmetric
+   * (tr A² ≈ 0 next to ‖A‖², J̄'s entries of mean zero): its share of `rowSquares` and of `diagonalSquare`, and
+   * `covariance`, E_i[Cov(z_i, g_i)²] of a unit's forward value z_i with the skip's part g of its gradient (g linear
+   * in the block's input x), from which a pointwise unit's gradient mean follows by Stein's lemma. Carried by dense
+   * layers and pointwise activations; any other layer drops it (its M is then taken as symmetric)
+   */
+  skip?: { rowSquares: number; diagonalSquare: number; covariance: number };
 }
 
 

@@ -349,13 +349,45 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     gradient.q = Math.max(gradient.q + curvature.diagonalSquare * (self.second - d2 * self.outputSecond), 0);
     if (output.q > 0) ratio = gradient.q / output.q;
     if (ledger) rule = selfGateRule(name, derivativeSecond, ratio);
-    gradient.shared = Math.min((gradient.shared ?? 0) + curvature.diagonalSquare * self.mean * self.mean, gradient.q);
+    const skip = curvature.skip;
+    let skipMean = 0;
+    let own = curvature.diagonalSquare;
+    if (skip !== undefined) {
+      // the skip's part g of the gradient is linear in the block's input, jointly Gaussian with u: E[φ'(u)·g] =
+      // E[φ'']·Cov(u, g) and Cov(φ(u), g) = E[φ']·Cov(u, g) (Stein's lemma), not E[φ'φ] times A's diagonal; below, u's
+      // own Cov(u, φ'(u)·g) = E[φ' + u·φ'']·Cov(u, g) (own algebra, Stein's lemma twice)
+      const stein = skipStein(name, stash);
+      skipMean = stein.second * skip.covariance;
+      own = Math.max(own - skip.diagonalSquare, 0);
+      gradient.curvature.skip = {
+        rowSquares: d2 * d2 * skip.diagonalSquare + off * off * Math.max(skip.rowSquares - skip.diagonalSquare, 0),
+        diagonalSquare: d2 * d2 * skip.diagonalSquare,
+        covariance: stein.below * skip.covariance,
+      };
+    }
+    gradient.shared = Math.min((gradient.shared ?? 0) + own * self.mean * self.mean + skipMean, gradient.q);
   }
   return { gradient, ratio, rule };
 }
 
 function selfGateRule(name: string, derivativeSecond: number, ratio: number): Text {
   return () => `${name}: E[φ'²] = ${fmt(derivativeSecond)}, with the unit's own output the loss's curvature holds in its gradient: ${fmt(ratio)}`;
+}
+
+/**
+ * (E[φ'']/E[φ'])² and (E[φ' + u·φ'']/E[φ'])² of an activation's input u, the two from E[u·φ'] = q·E[φ''] and
+ * E[u²·φ'] = q·E[φ' + u·φ''] (Stein's lemma), which hold for the rectifiers' kinks too; 0 where E[φ'] = 0
+ */
+function skipStein(name: string, stash: ActivationStash): { second: number; below: number } {
+  const input = stash.input;
+  const keep = 1 - input.zeroFraction;
+  const q = keep > 0 ? input.q / keep : 0;
+  const mean = stash.derivativeMean;
+  if (!(q > 0) || !(Math.abs(mean) > 0)) return { second: 0, below: 0 };
+  const { df } = activationFunction(name as ActivationName, stash.slope);
+  const second = (keep * gaussianExpectationSplit((u) => u * df(u), q)) / q / mean;
+  const below = (keep * gaussianExpectationSplit((u) => u * u * df(u), q)) / q / mean;
+  return { second: second * second, below: below * below };
 }
 
 /**

@@ -187,7 +187,7 @@ export function linearBackward(
     // δ_in holds Wᵀ·M·W·x: E[(Wᵀ·M·W·x)_i²] = v²·(E[(tr M)²] + (fan_in + 1)·n·r)·E[x²] (Isserlis' theorem, r the row
     // squares), where the independent-weights rule counts fan_out·v·E[(M·y)²] = v²·n·fan_in·r·E[x²]: add the difference
     const before = input.q;
-    input.q += variance * variance * x.q * (traceSquareOf(curvature, outWidth) + outWidth * curvature.rowSquares);
+    input.q += variance * variance * x.q * (traceSquareOf(curvature, outWidth) + outWidth * (curvature.rowSquares - (curvature.skip?.rowSquares ?? 0)));
     if (before > 0) selfRatio = input.q / before;
   }
   if (output.shared !== undefined) input.shared = gain * output.shared;
@@ -204,14 +204,17 @@ export function linearBackward(
 
 /**
  * Curvature M' = Wᵀ·M·W of a dense layer's input, W [outWidth, inWidth] with independent entries of variance v:
- * E[M'_ii] = v·tr M, E[M'_ii²] = v²·(E[(tr M)²] + 2·tr M²), E[M'_ij²] = v²·tr M² (Isserlis' theorem; the diagonal of M
- * taken as independent entries).
+ * E[M'_ii] = v·tr M, E[M'_ii²] = v²·(E[(tr M)²] + ‖M‖² + tr M²), E[M'_ij²] = v²·‖M‖² (Isserlis' theorem; the diagonal
+ * of M taken as independent entries), tr M² = ‖M‖² for a symmetric M and ‖M‖² less the skip's non-symmetric part's
+ * square otherwise (Curvature.skip).
  */
 export function densePullback(m: Curvature, v: number, outWidth: number, inWidth: number): Curvature {
   const trace = outWidth * m.diagonal;
   const traceSquare = traceSquareOf(m, outWidth);
   const frobenius = outWidth * m.rowSquares;
-  const diagonalSquare = v * v * (traceSquare + 2 * frobenius);
+  // own algebra: the skip's A = c·M·J̄ᵀ has tr A² = c²·tr(M·J̄ᵀ·M·J̄ᵀ) of mean zero, so its ‖A‖² enters the diagonal once
+  const skip = m.skip === undefined ? 0 : outWidth * m.skip.rowSquares;
+  const diagonalSquare = v * v * (traceSquare + 2 * frobenius - skip);
   const diagonal = v * trace;
   // a Gauss–Newton M' is positive semidefinite, so M'_ij² ≤ M'_ii·M'_jj (Cauchy–Schwarz): a row's squares are at most
   // E[M'_ii·tr M'], which the independent-entries count overshoots through many narrow layers
@@ -219,6 +222,9 @@ export function densePullback(m: Curvature, v: number, outWidth: number, inWidth
   const rowSquares = m.indefinite === true ? counted : Math.min(counted, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
   const pulled: Curvature = { diagonal, diagonalSquare, rowSquares };
   if (m.indefinite === true) pulled.indefinite = true;
+  // Wᵀ·A·W stays non-symmetric; E_i[Cov(x_i, (Wᵀg)_i)²] = v·fan_out·E[C²] against v·fan_in·E[C²] above, C_ja =
+  // Cov(x_j, g_a) independent of W (own algebra)
+  if (m.skip !== undefined) pulled.skip = { rowSquares: inWidth * v * v * skip, diagonalSquare: v * v * skip, covariance: (m.skip.covariance * outWidth) / inWidth };
   return pulled;
 }
 

@@ -133,7 +133,13 @@ export const normRule: AnalyticRule<NormStash> = {
     // the loss's curvature through the gain: δ_i holds M_ii·g·x̂_i, so Σ_t x̂_i·δ_i gains N·g·E[x̂²]·M_ii in every
     // micro-batch, of one sign for every feature (see Curvature)
     const curvature = output.curvature;
-    const aligned = curvature === undefined ? 0 : terms * terms * stash.gainSquared * stash.normalisedSecond * stash.normalisedSecond * curvature.diagonalSquare;
+    let aligned = 0;
+    if (curvature !== undefined) {
+      const skip = curvature.skip;
+      aligned = terms * terms * stash.gainSquared * stash.normalisedSecond * stash.normalisedSecond * Math.max(curvature.diagonalSquare - (skip?.diagonalSquare ?? 0), 0);
+      // the skip's part g of δ (Curvature.skip) gives E[x̂_i·g_i] = Cov(y_i, g_i)/gain, not gain·E[x̂²]·A_ii (own algebra)
+      if (skip !== undefined && stash.gainSquared > 0) aligned += (terms * terms * skip.covariance) / stash.gainSquared;
+    }
     const pairs = gainPairCorrelations(stash, output);
     const weightGradients: WeightGradientMoment[] = [
       {

@@ -88,6 +88,8 @@ export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: 
       const cross = c * c * m.rowSquares * jacobian;
       seed.diagonalSquare += cross / stash.width;
       seed.rowSquares += cross;
+      // Cov(F_i, (α·M·x)_i) = α·q_x·(M·J̄ᵀ)_ii: its square q_F²·cross/n (own algebra, Stein's lemma as above)
+      seed.skip = { rowSquares: cross, diagonalSquare: cross / stash.width, covariance: (stash.branchQ * stash.branchQ * cross) / stash.width };
       // M·J̄ᵀ is not symmetric: no positive semidefinite bound holds for M_F
       seed.indefinite = true;
       delete seed.centred;
