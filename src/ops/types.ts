@@ -125,6 +125,13 @@ export interface Gradient {
    */
   windowMaximum?: number;
   /**
+   * set by max-pool's backward and kept by the positively homogeneous activations below it (ReLU, leaky ReLU): E[S²]
+   * of S = Σ over batch and positions of z·δ for one channel, z the tensor this gradient belongs to. Σ y·δ_y = Σ p·g
+   * at the pool's output (Euler's theorem, φ(y) = y·φ'(y); the arg-max routing moves g to a pixel equal to p), and a
+   * layer y = w·x below gets S·w/‖w‖² in its weight gradient: the routed pixels are where x lines up with w
+   */
+  homogeneousSum?: number;
+  /**
    * set by a ReLU's backward rule on the gradient it passes down: the sample and position correlations of the gradient
    * before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose
    * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']

@@ -334,6 +334,8 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   if (output.crossCorrelation !== undefined && derivativeSecond > 0) gradient.crossCorrelation = Math.min((sampleCross * output.crossCorrelation) / derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
+  // Euler's theorem: u·φ'(u) = φ(u) for a positively homogeneous φ, so Σ u·δ_u = Σ φ(u)·δ_φ
+  if (output.homogeneousSum !== undefined && (name === "relu" || name === "leaky-relu")) gradient.homogeneousSum = output.homogeneousSum;
   if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output) };
   const curvature = output.curvature;
   if (curvature !== undefined && k === undefined) {

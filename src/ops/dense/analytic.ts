@@ -150,7 +150,14 @@ export function linearBackward(
   // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
   // E[x xᵀ]'s row: E[x²]² on the diagonal and the covariances of the (fan_in − 1) other features off it (featureCovariance)
   const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * (1 + (inWidth - 1) * (x.featureCovariance ?? 0)) * variance * curvature.rowSquares;
-  const weightSum = gradientSum(ctx.batch, positions, output, x);
+  let weightSum = gradientSum(ctx.batch, positions, output, x);
+  const bias = maybeWeight(layer, "bias");
+  if (output.homogeneousSum !== undefined && inWidth > 0 && variance > 0 && (bias === undefined || ctx.variance(bias) === 0)) {
+    // Σ δ·xᵀ holds S·w/‖w‖² along the unit's own weights, S = Σ y·δ (Gradient.homogeneousSum), in place of one of
+    // fan_in like directions; E[S²/‖w‖²] = E[S²]/(fan_in·var_w) as S ∝ ‖w‖ (own algebra)
+    const fanIn = weightOf(layer, "weight").fanIn;
+    weightSum = weightSum * (1 - 1 / fanIn) + output.homogeneousSum / (fanIn * fanIn * variance);
+  }
   const weightGradients: WeightGradientMoment[] = [
     {
       weight: "weight",

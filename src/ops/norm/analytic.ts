@@ -141,11 +141,16 @@ export const normRule: AnalyticRule<NormStash> = {
       if (skip !== undefined && stash.gainSquared > 0) aligned += (terms * terms * skip.covariance) / stash.gainSquared;
     }
     const pairs = gainPairCorrelations(stash, output);
+    let gainQ = correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned;
+    const normBias = maybeWeight(layer, "bias");
+    // Σ x̂·δ = Σ (y − β)·δ/γ: with β = 0 it is the max-pool's S = Σ p·g passed down by Euler's theorem
+    // (Gradient.homogeneousSum; own algebra), whose pairs the pool counted at its output
+    if (output.homogeneousSum !== undefined && stash.gainSquared > 0 && (normBias === undefined || ctx.variance(normBias) === 0)) gainQ = output.homogeneousSum / stash.gainSquared;
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
         // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
-        q: correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned,
+        q: gainQ,
         alignedQ: aligned,
         betweenQ: betweenBatches(ctx.batch, positions, stash.normalisedSecond * output.q, pairs[0]),
         coherentQ: terms * terms * stash.normalisedSecond * output.q,

@@ -9,7 +9,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt, gradientCopy, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
+import { NO_FACTORS, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -54,8 +54,13 @@ export function maxOfNormals(k: number): { m1: number; m2: number; m2Positive: n
   return result;
 }
 
-export const poolRule: AnalyticRule<null> = {
-  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<null> {
+/** What max-pool's backward needs: its output's moments. */
+export interface PoolStash {
+  output: Signal;
+}
+
+export const poolRule: AnalyticRule<PoolStash | null> = {
+  forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<PoolStash | null> {
     const k = windowElements(layer);
     const variance = Math.max(input.q - input.mean * input.mean, 0);
     let q: number;
@@ -114,10 +119,10 @@ export const poolRule: AnalyticRule<null> = {
       role: "activation",
       inner: [],
       hazards: [],
-      stash: null,
+      stash: { output },
     };
   },
-  backward(ctx: OpContext, layer: GraphLayer, _stash: null, output: Gradient): BackwardResult {
+  backward(ctx: OpContext, layer: GraphLayer, stash: PoolStash | null, output: Gradient): BackwardResult {
     const k = windowElements(layer);
     const share = sampleElements(layer.output) / sampleElements(layer.input);
     if (layer.family === "average-pool") {
@@ -170,6 +175,9 @@ export const poolRule: AnalyticRule<null> = {
     }
     input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
     input.windowMaximum = k;
+    // Σ a·δ_a over the routed pixels is Σ p·g at the output (a pixel picked by two windows gets g + g', a = p = p'):
+    // a per-channel sum of batch × pixels products, paired as a weight gradient's terms (own algebra)
+    if (stash !== null) input.homogeneousSum = gradientSum(ctx.batch, pixelsOut, output, stash.output);
     return {
       input,
       factors: ctx.ledger ? [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)] : NO_FACTORS,
