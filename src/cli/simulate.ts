@@ -163,10 +163,23 @@ export function parseShrink(text: string): Partial<ShrinkFactors> {
  * lossValue), and so does the exit code.
  */
 export function simulationExitCode(result: SimulationResult): number {
-  const bad = result.tensors.some(
-    (t) => (t.countsScaledBy === undefined && overflowShare(t.median.counts) > 0) || (t.median.accumulateCounts !== undefined && overflowShare(t.median.accumulateCounts) > 0),
-  );
+  const bad = result.tensors.some((t) => {
+    if (t.countsScaledBy === undefined) return overflowShare(t.median.counts) > 0;
+    const summed = summedLossCounts(t, result);
+    return summed !== undefined && overflowShare(summed) > 0;
+  });
   return bad ? EXIT.findings : EXIT.ok;
+}
+
+/**
+ * The scaled loss's counts in the accumulate format, where check judges its sum: a line of their own when the plan
+ * accumulates in another format than its activations', else the activation format's counts themselves (the run counts
+ * one format once, as check does).
+ */
+function summedLossCounts(t: MeasuredTensor, result: SimulationResult): FormatCounts | undefined {
+  if (t.countsScaledBy === undefined) return undefined;
+  if (t.median.accumulateCounts !== undefined) return t.median.accumulateCounts;
+  return result.formats.accumulate === result.formats.activations ? t.median.counts : undefined;
 }
 
 function overflowShare(counts: FormatCounts): number {
@@ -287,14 +300,21 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
-  const loss = shown.find((t) => t.countsScaledBy !== undefined && (t.countsScaledBy !== 1 || t.median.accumulateCounts !== undefined));
+  const loss = shown.find((t) => t.countsScaledBy !== undefined && (t.countsScaledBy !== 1 || summedLossCounts(t, result) !== undefined));
   if (loss !== undefined) {
     const scaled = loss.countsScaledBy === 1 ? "the loss" : `the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)})`;
     const held = loss.median.accumulateCounts;
+    const summed = summedLossCounts(loss, result) !== undefined;
+    const where =
+      held !== undefined
+        ? ` and, on the line below, summed in the accumulate format, ${held.format}`
+        : summed
+          ? `, which is also the accumulate format it is summed in`
+          : "";
     lines.push(
-      `  ${loss.id}: the shares are of ${scaled} kept in the activation format${held !== undefined ? ` and, on the line below, summed in the accumulate format, ${held.format}` : ""}, ` +
+      `  ${loss.id}: the shares are of ${scaled} kept in the activation format${where}, ` +
         `as check judges the loss value; the magnitudes are the loss's own. The run keeps the loss in binary64, so ` +
-        (held !== undefined ? `only an overflow of the sum (which check says fails) sets the exit code.` : `it sets no exit code.`),
+        (summed ? `only an overflow of the sum (which check says fails) sets the exit code.` : `it sets no exit code.`),
     );
   }
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));

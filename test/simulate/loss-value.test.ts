@@ -119,6 +119,22 @@ describe("simulate counts the scaled loss in the accumulate format too, as check
     expect(lossRow(spec(accumulating("binary16", "1024").replace("activations: binary32", "activations: binary16"))).row.median.accumulateCounts).toBeUndefined();
   });
 
+  it("with activations and accumulation both binary16, the one count is the sum's: an overflow check says fails sets the exit code", async () => {
+    const s = spec(accumulating("binary16", "1024").replace("activations: binary32", "activations: binary16"));
+    const { result, row, loss } = lossRow(s);
+    // 1024 · ≈147 passes 65504 (IEEE 754-2019 Table 3.5)
+    expect(1024 * loss).toBeGreaterThan(65504);
+    const finding = check(s).formats.find((f) => f.format === "binary16")?.findings.find((x) => x.kind === "loss-value-overflow");
+    expect(finding?.severity).toBe("fails");
+    expect(row.median.accumulateCounts).toBeUndefined();
+    expect(row.median.counts).toMatchObject({ format: "binary16", overflowed: 1 });
+    expect(simulationExitCode(result)).toBe(1);
+    const { renderSimulationText } = await import("../../src/cli/simulate.js");
+    expect(renderSimulationText({ result })).toMatch(/which is also the accumulate format it is summed in, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
+    // at 64 the sum fits (64 · 147 ≈ 9,400 < 65504): exit 0
+    expect(simulationExitCode(lossRow(spec(accumulating("binary16", "64").replace("activations: binary32", "activations: binary16"))).result)).toBe(0);
+  });
+
   it("text lists the sum on a line of its own under the loss; JSON has it under measured.accumulateCounts", async () => {
     const { renderSimulationJson, renderSimulationText } = await import("../../src/cli/simulate.js");
     const report = { result: runSimulation(spec(accumulating("binary16", "1024")), { round: false }) };

@@ -27,8 +27,8 @@ export const register: RegisterCommand = (program) => {
       "after",
       "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input. " +
         "The loss is listed with the shares of the loss times the loss scale, as check judges it, in the activation format (not " +
-        "stored: no exit code) and, when the plan accumulates in another format, summed in that one (an overflow there exits 1, " +
-        "as check says it fails).",
+        "stored: no exit code) and, when the plan accumulates in another format, summed in that one; an overflow of the sum " +
+        "exits 1, as check says it fails (with one format for both, the one count is the sum's).",
     )
     .action(lazyAction(() => import("../simulate.js").then((m) => m.runSimulate)));
 };
