@@ -3,7 +3,7 @@
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
 import { check, type MeasuredNetwork } from "./check.js";
-import { getFormat, MX_BLOCK } from "./formats/index.js";
+import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import { VERDICT_RANK, worseVerdict, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
@@ -12,12 +12,6 @@ import type { LossScaleAnswer } from "./scale/recommend.js";
 
 const base = { overflow: "saturate", flushSubnormals: false, scaling: "none" } as const;
 
-/**
- * The plans `headroom compare` evaluates when the spec names none of its own (our own names):
- * all binary32; binary16 storage with a binary32 master copy and a loss scale; bfloat16 storage with a binary32
- * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
- * factors (Micikevicius et al. 2022) and a binary32 master copy.
- */
 /** The baseline of the "saved" share: every tensor in binary32, no master copy (the first standard plan). */
 export const ALL_BINARY32_PLAN: PrecisionPlan = {
   ...base,
@@ -30,6 +24,12 @@ export const ALL_BINARY32_PLAN: PrecisionPlan = {
   accumulate: "binary32",
 };
 
+/**
+ * The plans `headroom compare` evaluates when the spec names none of its own (our own names):
+ * all binary32; binary16 storage with a binary32 master copy and a loss scale; bfloat16 storage with a binary32
+ * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
+ * factors (Micikevicius et al. 2022) and a binary32 master copy.
+ */
 export const STANDARD_PLANS: readonly PrecisionPlan[] = [
   ALL_BINARY32_PLAN,
   { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32" },
@@ -206,25 +206,28 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   };
 }
 
-// the same formats for every stored tensor: the same memory
-function sameStorage(a: PrecisionPlan, b: PrecisionPlan): boolean {
+// the same format for every stored tensor role
+function sameStoredFormats(a: PrecisionPlan, b: PrecisionPlan): boolean {
   return (
     a.activations === b.activations &&
     a.weights === b.weights &&
     a.gradients === b.gradients &&
     a.optimizerStates === b.optimizerStates &&
-    a.masterWeights === b.masterWeights &&
+    a.masterWeights === b.masterWeights
+  );
+}
+
+// the same formats for every stored tensor, and the same scale bytes: the same memory
+function sameStorage(a: PrecisionPlan, b: PrecisionPlan): boolean {
+  return (
+    sameStoredFormats(a, b) &&
     (a.scaling === b.scaling || ![a.activations, a.weights, a.gradients, a.optimizerStates, a.masterWeights].some((f) => f !== "none" && getFormat(f).bits === 8))
   );
 }
 
 function samePlan(a: PrecisionPlan, b: PrecisionPlan): boolean {
   return (
-    a.activations === b.activations &&
-    a.weights === b.weights &&
-    a.gradients === b.gradients &&
-    a.optimizerStates === b.optimizerStates &&
-    a.masterWeights === b.masterWeights &&
+    sameStoredFormats(a, b) &&
     a.accumulate === b.accumulate &&
     a.lossScale === b.lossScale &&
     a.scaling === b.scaling &&
@@ -270,10 +273,6 @@ function explain(ranked: PlanOutcome[]): string[] {
 
 function costWords(o: PlanOutcome): string {
   const saved = o.savedShare > 0 ? `, ${(100 * o.savedShare).toFixed(0)}% less memory than all binary32` : "";
-  return `${byteCount(o.cost.bytesPerParameter)} bytes per parameter, ${byteCount(o.cost.bytesPerActivation)} per activation element${saved}`;
+  return `${bytesPerElementText(o.cost.bytesPerParameter)} bytes per parameter, ${bytesPerElementText(o.cost.bytesPerActivation)} per activation element${saved}`;
 }
 
-/** Bytes per element as the outputs write them: whole, or to two decimals when block scale bytes add a fraction. */
-function byteCount(bytes: number): string {
-  return Number.isInteger(bytes) ? String(bytes) : bytes.toFixed(2);
-}

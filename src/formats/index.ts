@@ -6,6 +6,7 @@ export { FORMAT_NAMES, isFormatName, type FormatName } from "./names.js";
 export {
   FORMATS,
   MX_BLOCK,
+  bytesPerElementText,
   OVERFLOW_MODES,
   getFormat,
   makeFormat,

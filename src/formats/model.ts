@@ -252,3 +252,12 @@ export function resolveOverflow(format: Format, overflow?: OverflowMode): Overfl
  * shared exponents an E8M0 scale holds, 2^(0 − 127) … 2^(254 − 127) (SCIENCE.md §1.4).
  */
 export const MX_BLOCK = { size: 32, minExponent: -127, maxExponent: 127 } as const;
+
+/**
+ * Bytes per element as headroom writes them: whole, or to two decimals when per-block scale bytes add a fraction
+ * (one E8M0 byte per {@link MX_BLOCK} elements: 1/32 = 0.03125).
+ * @example bytesPerElementText(1.03125) // => "1.03"
+ */
+export function bytesPerElementText(bytes: number): string {
+  return Number.isInteger(bytes) ? String(bytes) : bytes.toFixed(2);
+}

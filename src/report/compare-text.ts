@@ -3,6 +3,7 @@
  * Pure: a PlanComparison in, a string out.
  */
 import type { PlanComparison } from "../compare.js";
+import { bytesPerElementText } from "../formats/index.js";
 import { formatBytes, formatPercent, formatPowerOfTwo } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable } from "./table.js";
@@ -11,11 +12,6 @@ import { verdictText, wrap } from "./check-text.js";
 export interface CompareTextOptions {
   style?: Style;
   width?: number;
-}
-
-// bytes per element: whole, or to two decimals when block scale bytes add a fraction (as compare's own sentences)
-function byteCount(bytes: number): string {
-  return Number.isInteger(bytes) ? String(bytes) : bytes.toFixed(2);
 }
 
 /** @example renderCompareText(comparePlans(spec)) // => "headroom compare: wide-classifier ...\n" */
@@ -30,8 +26,8 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     // told apart as the batch table tells them ("not needed" there too; its "none" for an empty window is "none fits" here):
     // a bare "none" read the same for a plan that needs no scale and one that no static scale fits
     o.lossScale !== null ? formatPowerOfTwo(Math.log2(o.lossScale)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
-    `${byteCount(o.cost.bytesPerParameter)} B`,
-    `${byteCount(o.cost.bytesPerActivation)} B`,
+    `${bytesPerElementText(o.cost.bytesPerParameter)} B`,
+    `${bytesPerElementText(o.cost.bytesPerActivation)} B`,
     formatBytes(o.cost.parameterBytes + o.cost.activationBytes),
     o.storesAsBaseline ? "—" : formatPercent(o.savedShare),
   ]);
