@@ -250,30 +250,19 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
     const row = byId.get(t.id);
     const m = t.median;
     const held = m.accumulateCounts;
-    // the scaled loss held in the accumulate format: its shares on a line of their own, under the loss's
-    const accumulateLine: Cell[][] =
-      held === undefined
-        ? []
-        : [
-            [
-              `${t.id} (accumulate)`,
-              held.format,
-              "",
-              "",
-              "",
-              ...(result.shrink.shrunk ? [""] : []),
-              "",
-              "",
-              "",
-              "",
-              "",
-              "",
-              share(held.flushed),
-              share(held.subnormal),
-              share(overflowShare(held)),
-              ...(result.steps > 0 ? [""] : []),
-            ],
-          ];
+    // the scaled loss held in the accumulate format: its shares on a line of their own, under the loss's, the other
+    // columns blank (found by title, so a new column cannot shift them)
+    const accumulateLine: Cell[][] = [];
+    if (held !== undefined) {
+      const cells: Record<string, Cell> = {
+        tensor: `${t.id} (accumulate)`,
+        format: held.format,
+        flushed: share(held.flushed),
+        subnormal: share(held.subnormal),
+        overflow: share(overflowShare(held)),
+      };
+      accumulateLine.push(columns.map((c) => cells[c.title] ?? ""));
+    }
     const line: Cell[] = [
       t.id,
       m.counts.format,
