@@ -77,4 +77,3 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
 }
 
 // one error on one line: file, tensor, byte offset (where one points at something), what is wrong
-export { issueLine };

@@ -3,9 +3,7 @@
  * offset only where one points at something. Files are written by the independent writer in writers.ts.
  */
 import { afterAll, describe, expect, it } from "vitest";
-import { issueLine } from "../../src/cli/scan.js";
-import { loadMeasurements } from "../../src/measure/index.js";
-import { scanFiles, type ScanIssue } from "../../src/measure/index.js";
+import { issueLine, loadMeasurements, scanFiles, type ScanIssue } from "../../src/measure/index.js";
 import { encode, npyBytes, safetensorsBytes, scratch } from "./writers.js";
 
 const files = scratch();
