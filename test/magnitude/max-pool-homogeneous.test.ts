@@ -1,5 +1,7 @@
 import { describe, expect, it } from "vitest";
 import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
+import { residualBranchSeed } from "../../src/ops/residual/analytic.js";
+import type { GraphLayer } from "../../src/graph/types.js";
 
 // A max pool routes its gradient to the pixels where the layer below is largest, where that layer's input lines up
 // with its weights: a convolution y = w·x below a ReLU and a max pool gets S·w/‖w‖² in its weight gradient, S = Σ y·δ
@@ -61,5 +63,15 @@ ${WIDE_PLAN}layers:
     expect(d.size).toBe(1);
     // what is left (−0.17): the pool's output variance, taken as the max of Gaussians (see the sweep's s2 case)
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.3);
+  });
+});
+
+describe("a residual block under a max pool", () => {
+  it("its branch does not take the block output's Σ y·δ: Σ F·δ_F = Σ y·δ − Σ x·δ for y = x + F", () => {
+    // a block output gradient that carries the pool's sum (a ReLU and a max pool above the block)
+    const layer = { spec: { type: "residual", multiplier: 1, branch: [] } } as unknown as GraphLayer;
+    const seed = residualBranchSeed(layer, { q: 1, zeroFraction: 0, shape: "gaussian", logVar: 0, homogeneousSum: 5 }, false);
+    expect(seed.gradient.q).toBe(1);
+    expect(seed.gradient.homogeneousSum).toBeUndefined();
   });
 });
