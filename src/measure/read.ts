@@ -25,7 +25,7 @@ export interface OpenTensorFile {
  * magic, else safetensors; a file named .npy that has neither the magic nor a safetensors start is refused as not a
  * .npy array (its safetensors errors would describe a format the user never meant).
  */
-export async function openTensorFile(path: string): Promise<{ ok: true; file: OpenTensorFile } | { ok: false; issue: ScanIssue }> {
+export async function openTensorFile(path: string): Promise<{ ok: true; file: OpenTensorFile } | { ok: false; issue: ScanIssue; size?: number }> {
   let handle: FileHandle;
   try {
     handle = await open(path, "r");
@@ -40,16 +40,17 @@ export async function openTensorFile(path: string): Promise<{ ok: true; file: Op
     const isNpy = first.length >= 6 && NPY_MAGIC.every((b, i) => first[i] === b);
     if (!isNpy && isZip(first)) {
       await handle.close();
-      return { ok: false, issue: { file: path, message: ZIP_MESSAGE } };
+      return { ok: false, issue: { file: path, message: ZIP_MESSAGE }, size };
     }
     if (!isNpy && /\.npy$/i.test(path) && !looksLikeSafetensors(first, size)) {
       await handle.close();
-      return { ok: false, issue: { file: path, message: notNpyMessage(first) } };
+      return { ok: false, issue: { file: path, message: notNpyMessage(first) }, size };
     }
     const parsed = isNpy ? await readNpyLayout(handle, path, first, size) : await readSafetensorsLayout(handle, path, first, size);
     if (!parsed.ok) {
       await handle.close();
-      return parsed;
+      // the file's size is known once it is open, whatever its header holds
+      return { ok: false, issue: parsed.issue, size };
     }
     return { ok: true, file: { layout: parsed.layout, handle } };
   } catch (error) {

@@ -83,6 +83,7 @@ export interface TensorMeasure {
 export interface FileScan {
   file: string;
   kind: "safetensors" | "npy" | null;
+  /** the file's size in bytes (0 when it could not be opened) */
   size: number;
   tensors: TensorMeasure[];
   skipped: SkippedTensor[];
@@ -117,7 +118,7 @@ export async function scanFile(path: string, options: ScanOptions): Promise<File
   const tolerance = options.tolerance ?? 0;
   if (!(tolerance >= 0 && tolerance <= 1)) throw new RangeError(`tolerance must be a share between 0 and 1; got ${tolerance}`);
   const opened = await openTensorFile(path);
-  if (!opened.ok) return { file: path, kind: null, size: 0, tensors: [], skipped: [], issues: [opened.issue] };
+  if (!opened.ok) return { file: path, kind: null, size: opened.size ?? 0, tensors: [], skipped: [], issues: [opened.issue] };
   const { layout, handle } = opened.file;
   const result: FileScan = {
     file: path,

@@ -9,9 +9,9 @@ import { encode, npyBytes, safetensorsBytes, scratch } from "./writers.js";
 const files = scratch();
 afterAll(() => files.cleanup());
 
-async function scanOne(path: string): Promise<{ issues: ScanIssue[]; measured: string[] }> {
+async function scanOne(path: string): Promise<{ issues: ScanIssue[]; measured: string[]; size: number }> {
   const result = await scanFiles([path], { targets: [] });
-  return { issues: result.files[0]!.issues, measured: result.files[0]!.tensors.map((t) => t.name) };
+  return { issues: result.files[0]!.issues, measured: result.files[0]!.tensors.map((t) => t.name), size: result.files[0]!.size };
 }
 
 const text = new TextEncoder().encode("id,value\n1,0.5\n2,0.25\n");
@@ -31,7 +31,7 @@ describe("a tensor file's kind is decided by its content", () => {
 
   it("a safetensors file named .npy is read as safetensors, and an .npy array named otherwise as .npy", async () => {
     const safetensors = files.write("renamed.npy", safetensorsBytes([{ name: "w", dtype: "F32", shape: [2], data: encode("F32", [1, 2]) }]));
-    expect(await scanOne(safetensors)).toEqual({ issues: [], measured: ["w"] });
+    expect(await scanOne(safetensors)).toMatchObject({ issues: [], measured: ["w"] });
     const npy = files.write("renamed.bin", npyBytes(1, "<f4", [2], encode("F32", [1, 2])));
     expect((await scanOne(npy)).issues).toEqual([]);
   });
@@ -65,8 +65,10 @@ describe("a .npy file cut inside its prefix", () => {
   it("is told as cut where it ends, not as lacking the magic it has", async () => {
     // NumPy's format description: magic (6 bytes), major and minor version (2), header length (2 in version 1)
     const path = files.write("cut.npy", Uint8Array.of(0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59, 1, 0));
-    const { issues } = await scanOne(path);
+    const { issues, size } = await scanOne(path);
     expect(issues).toEqual([{ file: path, byteOffset: 8, message: "file ends after 8 bytes, inside the .npy prefix (magic, version, header length: 10 bytes)" }]);
+    // the file's own size, which was known (it said 0)
+    expect(size).toBe(8);
   });
 });
 
@@ -76,7 +78,9 @@ describe("a zip archive", () => {
     const zip = Uint8Array.of(0x50, 0x4b, 0x03, 0x04, 0x14, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0);
     for (const name of ["arrays.npz", "weights.npy", "weights.safetensors"]) {
       const path = files.write(name, zip);
-      expect((await scanOne(path)).issues, name).toEqual([
+      const scanned = await scanOne(path);
+      expect(scanned.size, name).toBe(16);
+      expect(scanned.issues, name).toEqual([
         { file: path, message: "a zip archive (as NumPy's .npz is), not a safetensors file or a .npy array: extract its .npy arrays and give those" },
       ]);
     }
