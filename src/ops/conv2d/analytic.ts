@@ -126,7 +126,11 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
   },
 };
 
-/** E[(Σ_{n, p∈V} δ)²] over N samples and v pixels of a gradient with pair correlations ρ_p, ρ_s, ρ_c (common practice). */
+/**
+ * E[(Σ_{n, p∈V} δ)²] over N samples and v pixels of a gradient with pair correlations ρ_p, ρ_s, ρ_c (common practice).
+ * common.ts correlatedSum without its clamp at 0: the taps' partial sums are taken as differences from the whole sum,
+ * which a batch norm below drives to zero (or, in rounding, just under it), and a clamp there would bias them.
+ */
 function subsetSum(batch: number, v: number, q: number, rp: number, rs: number, rc: number): number {
   return batch * v * q * (1 + (v - 1) * rp + (batch - 1) * (rs + (v - 1) * rc));
 }
