@@ -26,6 +26,7 @@
  * terms.
  */
 import { expectedMaxNormal } from "./extremes.js";
+import { normalLogCdf, normalPdf } from "./normal.js";
 
 /** Moments of the softmax of C independent N(0, s²) logits. */
 export interface SoftmaxMoments {
@@ -39,8 +40,8 @@ export interface SoftmaxMoments {
 
 const Z_RANGE = 9; // φ(9) ≈ 1e-18
 /**
- * Above this logit variance (s = 20) the grids grow as s² and the softmax is one-hot to within a few per cent:
- * E[p²] → 1/C and E[ln Σ e^z] → s·E[max of C normals].
+ * Above this logit variance (s = 20) gaussianSoftmaxMoments and gaussianSoftmaxPairMoment take the one-hot limit:
+ * E[p²] → 1/C and E[ln Σ e^z] → s·E[max of C normals] (their grids grow as s²). The rows of attention do not.
  */
 const ONE_HOT_VARIANCE = 400;
 /** Below this logit variance the lattice would need U_STEP/(U_STEP·s) points per step; the expansion is exact to 1e-8. */
@@ -410,10 +411,52 @@ export interface SoftmaxRowMoments {
   tiltMean: number;
 }
 
-/** Rows of one-hot attention: the largest of n logits takes the whole row; tilt ≈ E[max]², the maximum's own spread left out (rough). */
-function oneHotRows(variance: number, n: number): SoftmaxRowMoments {
-  const top = expectedMaxNormal(n);
-  return { sumSquares: 1, centred: 0, tilt: top * top, tiltMean: top / Math.sqrt(variance) };
+/**
+ * Above this logit variance (s ≈ 45) the quadrature of gaussianSoftmaxRows would take over 3,000 nodes of ln t
+ * (its grid spans about 20s); peakedRows carries its values on from here.
+ */
+const ROW_QUADRATURE_VARIANCE = 2000;
+
+/**
+ * Rows past ROW_QUADRATURE_VARIANCE: the quadrature at s₀² = ROW_QUADRATURE_VARIANCE carried on by the leading order
+ * of the peaked limit (derived). A row is then one-hot except when its two largest logits lie within O(1) of each
+ * other, which has probability f_D(0)·O(1) with f_D(0) = f_G(0)/s, G the gap of the two largest of n standard
+ * normals: so 1 − E[S], the Jacobian's share and E[Σ p z]/s² (= 1 − E[S], Stein's lemma) fall as 1/s. There
+ * Σ p_j x_j (x = z/s) differs from x_max by p₂·d/s, d = O(1), so E[(Σ p z)²]/s² − E[x_max²] falls as 1/s².
+ * Continuous at s₀, and the one-hot limit (S = 1, no Jacobian, tilt E[x_max²]) only at s = ∞.
+ */
+function peakedRows(variance: number, minKeys: number, maxKeys: number): SoftmaxRowMoments[] {
+  const anchor = softmaxRows(ROW_QUADRATURE_VARIANCE, minKeys, maxKeys);
+  const r = Math.sqrt(ROW_QUADRATURE_VARIANCE / variance);
+  const limit = maxSquares(minKeys, maxKeys);
+  return anchor.map((row, i) => {
+    const top = limit[i] as number;
+    return {
+      sumSquares: 1 - (1 - row.sumSquares) * r,
+      centred: row.centred * r,
+      tilt: top + (row.tilt - top) * r * r,
+      tiltMean: row.tiltMean * r,
+    };
+  });
+}
+
+/**
+ * E[x_max²] of n = minKeys … maxKeys independent N(0, 1): ∫ x²·d(Φ(x)^n), by the trapezoid rule on [−9, 9] in
+ * steps of 1/64 (φ(9) ≈ 1e-18; Trefethen & Weideman 2014 for a smooth integrand decaying at both ends).
+ */
+function maxSquares(minKeys: number, maxKeys: number): Float64Array {
+  const count = maxKeys - minKeys + 1;
+  const out = new Float64Array(count);
+  const step = 1 / 64;
+  for (let x = -Z_RANGE; x <= Z_RANGE; x += step) {
+    const logCdf = normalLogCdf(x);
+    const density = normalPdf(x) * x * x * step;
+    for (let i = 0; i < count; i++) {
+      const n = minKeys + i;
+      out[i] = (out[i] as number) + n * density * Math.exp((n - 1) * logCdf);
+    }
+  }
+  return out;
 }
 
 /**
@@ -425,7 +468,8 @@ function oneHotRows(variance: number, n: number): SoftmaxRowMoments {
  * E[p_1·p_2·z_1·z_2] = ∫ E[z·y·e^(−y)]²·L_0^(n−2) d(ln t) (1/x^m = (1/Γ(m))·∫ t^(m−1)·e^(−t·x) dt; own algebra), on the
  * lattice of gaussianSoftmaxMoments at the largest n (the smaller rows' integrands vanish below its anchor too), with
  * z = s·x taken at the Gaussian nodes, so that no ln y is formed. The powers L_0^(n−1) are built by repeated
- * products over n. Below s² = 10⁻⁴ the first-order expansion p ≈ (1 + z − z̄)/n is used, above 400 the one-hot limit.
+ * products over n. Below s² = 10⁻⁴ the first-order expansion p ≈ (1 + z − z̄)/n is used, above ROW_QUADRATURE_VARIANCE
+ * the quadrature there carried on by the peaked limit's leading order (peakedRows), never exactly one-hot.
  * Returns an empty list for a non-finite or negative variance or fewer than one key.
  */
 export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxRowMoments[] {
@@ -440,14 +484,19 @@ export function gaussianSoftmaxRow(variance: number, keys: number): SoftmaxRowMo
   return softmaxRows(variance, keys, keys)[0];
 }
 
+/**
+ * The quadrature of gaussianSoftmaxRows at any variance, past ROW_QUADRATURE_VARIANCE too (slow there): for tests of
+ * peakedRows against it; the engine does not call it.
+ */
+export function gaussianSoftmaxRowsByQuadrature(variance: number, keys: number): SoftmaxRowMoments | undefined {
+  return softmaxRows(variance, keys, keys, Infinity)[0];
+}
+
 /** The rows of minKeys … maxKeys keys of gaussianSoftmaxRows (index n − minKeys). */
-function softmaxRows(variance: number, minKeys: number, maxKeys: number): SoftmaxRowMoments[] {
+function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadratureUpTo = ROW_QUADRATURE_VARIANCE): SoftmaxRowMoments[] {
   if (!(variance >= 0) || !Number.isFinite(variance) || !(maxKeys >= 1) || !Number.isInteger(maxKeys)) return [];
   const rows: SoftmaxRowMoments[] = [];
-  if (variance > ONE_HOT_VARIANCE) {
-    for (let n = minKeys; n <= maxKeys; n++) rows.push(oneHotRows(variance, n));
-    return rows;
-  }
+  if (variance > quadratureUpTo) return peakedRows(variance, minKeys, maxKeys);
   if (variance < SMALL_VARIANCE) {
     // p ≈ (1 + z − z̄)/n (derived): S = (1 + s²(1 − 1/n))/n, Σ p z ≈ z̄ + Σ z(z − z̄)/n of second moment
     // s²/n + s⁴(1 − 1/n)² and mean s²(1 − 1/n); the Jacobian's share to zeroth order
@@ -461,7 +510,10 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number): Softma
   // the cut of E[p²] in the module comment (K = e^(s²/2)/e against 1/n²), its K raised by 1 + s² + s⁴ for the
   // logit-weighted transforms (E[z²·e^z] = (s² + s⁴)·e^(s²/2)) and y³, y⁴ (y^m·e^(−y) ≤ y·((m − 1)/e)^(m−1))
   const h = U_STEP / (1 - Math.exp(-U_STEP));
-  const cut = Math.log((MOMENT_CUT * Math.E) / (h * 2 * (1 + variance + variance * variance))) - 2 * Math.log(maxKeys) - variance / 2;
+  // K bounds E[e^(sZ)] on the Gaussian grid, whose nodes end at Z_RANGE + h: by e^(s²/2), or by e^(s·(Z_RANGE + h))
+  // when that is smaller (s above about 19), so that the grid of ln t starts near −10s rather than −s²/2
+  const gridTop = Math.min(variance / 2, s * (Z_RANGE + Math.min(0.3, GAUSS_STEP * s) / s));
+  const cut = Math.log((MOMENT_CUT * Math.E) / (h * 2 * (1 + variance + variance * variance))) - 2 * Math.log(maxKeys) - gridTop;
   const { k, spacing, n: nz, weights, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, maxKeys, cut);
   // z = s·x at the Gaussian nodes (x on a grid of step h = spacing/s centred on 0)
   const wz = new Float64Array(nz);

@@ -24,10 +24,10 @@ describe("the reasons name the tensor the lists of findings put first", () => {
   });
 
   it("names the first of four blocks whose attention probabilities flush alike", () => {
-    // an invented frame tagger: four identical attention blocks, no scaling of the logits, 1500 positions; head width 512
-    // puts the logits' variance (512) past the one-hot limit of the softmax moments (src/numeric/softmax.ts), so the four
-    // blocks flush exactly alike (at width 64 their variances differ from the eighth digit on, through the layer norm's ε
-    // against a growing residual stream, and so do their exact row moments)
+    // an invented frame tagger: four identical attention blocks, no scaling of the logits, 1500 positions; a layer norm
+    // with ε = 0 hands each block's attention the same unit-variance input, so the four blocks flush exactly alike (with
+    // the default ε their variances differ from the eighth digit on, ε against a growing residual stream, and so do
+    // their row moments)
     const text = [
       "name: harbour-radio",
       "input: { features: 80, positions: 1500, scale: 4.0 }",
@@ -39,7 +39,7 @@ describe("the reasons name the tensor the lists of findings put first", () => {
       "    name: enc",
       "    times: 4",
       "    layers:",
-      "      - { type: residual, name: att, branch: [layer-norm, { type: attention, heads: 4, head-width: 512, scaling: none }] }",
+      "      - { type: residual, name: att, branch: [{ type: layer-norm, epsilon: 0 }, { type: attention, heads: 4, head-width: 64, scaling: none }] }",
       "  - { type: dense, name: phones, width: 64 }",
     ].join("\n");
     const parsed = parseSpec(text, "harbour-radio.yaml");
