@@ -478,18 +478,11 @@ export function gaussianSoftmaxRows(variance: number, maxKeys: number): SoftmaxR
 
 /**
  * gaussianSoftmaxRows for rows of exactly `keys` keys only (full attention), without the sums of the shorter rows;
- * undefined where gaussianSoftmaxRows returns an empty list.
+ * undefined where gaussianSoftmaxRows returns an empty list. `quadratureUpTo` moves the end of the quadrature
+ * (default 2000, ROW_QUADRATURE_VARIANCE; its cost grows as the variance): the tests compare the peaked limit with it.
  */
-export function gaussianSoftmaxRow(variance: number, keys: number): SoftmaxRowMoments | undefined {
-  return softmaxRows(variance, keys, keys)[0];
-}
-
-/**
- * The quadrature of gaussianSoftmaxRows at any variance, past ROW_QUADRATURE_VARIANCE too (slow there): for tests of
- * peakedRows against it; the engine does not call it.
- */
-export function gaussianSoftmaxRowsByQuadrature(variance: number, keys: number): SoftmaxRowMoments | undefined {
-  return softmaxRows(variance, keys, keys, Infinity)[0];
+export function gaussianSoftmaxRow(variance: number, keys: number, quadratureUpTo = ROW_QUADRATURE_VARIANCE): SoftmaxRowMoments | undefined {
+  return softmaxRows(variance, keys, keys, quadratureUpTo)[0];
 }
 
 /** The rows of minKeys … maxKeys keys of gaussianSoftmaxRows (index n − minKeys). */

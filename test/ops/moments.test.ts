@@ -127,9 +127,12 @@ describe("order statistics and tails (SCIENCE.md §4)", () => {
     let h = 0;
     for (let i = 1; i <= 1000; i++) h += 1 / i;
     expect(attentionRowSums(1000, true, 0).sumSquares).toBeCloseTo(h / 1000, 12);
-    // concentrated rows: E[Σp²] of Gaussian logits by the softmax quadrature (src/numeric/softmax.ts), one-hot in the limit
+    // concentrated rows: E[Σp²] of Gaussian logits by the softmax quadrature (src/numeric/softmax.ts), one-hot only in the
+    // limit: 1 − E[Σp²] → E[max of 16 normals]/s (Stein's lemma, Stein 1981, Lemma 1: E[Σ p z] = s²·(1 − E[Σp²]))
     expect(attentionRowSums(16, false, 10).sumSquares).toBeCloseTo(16 * gaussianSoftmaxMoments(10, 16).second, 12);
-    expect(attentionRowSums(16, false, 1e4).sumSquares).toBe(1);
+    const peaked = attentionRowSums(16, false, 1e6).sumSquares;
+    expect(peaked).toBeLessThan(1);
+    expect((1 - peaked) * 1e3 / expectedMaxNormal(16)).toBeCloseTo(1, 1);
   });
 });
 
