@@ -26,7 +26,7 @@
  * terms.
  */
 import { expectedMaxNormal } from "./extremes.js";
-import { normalLogCdf, normalPdf } from "./normal.js";
+import { normalCdf, normalLogCdf, normalPdf } from "./normal.js";
 
 /** Moments of the softmax of C independent N(0, s²) logits. */
 export interface SoftmaxMoments {
@@ -448,12 +448,15 @@ function maxSquares(minKeys: number, maxKeys: number): Float64Array {
   const count = maxKeys - minKeys + 1;
   const out = new Float64Array(count);
   const step = 1 / 64;
-  for (let x = -Z_RANGE; x <= Z_RANGE; x += step) {
-    const logCdf = normalLogCdf(x);
+  for (let j = 0; j <= 2 * 64 * Z_RANGE; j++) {
+    const x = -Z_RANGE + j * step;
+    const cdf = normalCdf(x);
     const density = normalPdf(x) * x * x * step;
-    for (let i = 0; i < count; i++) {
-      const n = minKeys + i;
-      out[i] = (out[i] as number) + n * density * Math.exp((n - 1) * logCdf);
+    // Φ^(n−1) by products over n; once it underflows it stays 0 for every longer row
+    let power = Math.exp((minKeys - 1) * normalLogCdf(x));
+    for (let i = 0; i < count && power > 0; i++) {
+      out[i] = (out[i] as number) + (minKeys + i) * density * power;
+      power *= cdf;
     }
   }
   return out;
