@@ -40,8 +40,8 @@ export interface SoftmaxMoments {
 
 const Z_RANGE = 9; // φ(9) ≈ 1e-18
 /**
- * Above this logit variance (s = 20) gaussianSoftmaxMoments and gaussianSoftmaxPairMoment take the one-hot limit:
- * E[p²] → 1/C and E[ln Σ e^z] → s·E[max of C normals] (their grids grow as s²). The rows of attention do not.
+ * Above this logit variance (s = 20) gaussianSoftmaxPairMoment takes the one-hot limit, interpolated in the
+ * correlation (its double sum grows as s⁴); gaussianSoftmaxMoments and the rows of attention do not.
  */
 const ONE_HOT_VARIANCE = 400;
 /** Below this logit variance the lattice would need U_STEP/(U_STEP·s) points per step; the expansion is exact to 1e-8. */
@@ -63,10 +63,11 @@ let cached = 0;
 /**
  * Exact moments of the softmax of `classes` independent N(0, variance) logits (method in the module comment).
  * Returns NaN fields for a negative or non-finite variance or fewer than one class; a variance of 0 gives the
- * uniform softmax exactly. Results are memoised.
+ * uniform softmax exactly. Past `quadratureUpTo` (default 2000; the quadrature's cost grows as s²)
+ * the quadrature there is carried on by the peaked limit's leading order. Results are memoised.
  * @example gaussianSoftmaxMoments(0.5, 2).second // E[sigmoid(Z)²] = 0.2933790359 (SCIENCE.md §2.9, q = 1)
  */
-export function gaussianSoftmaxMoments(variance: number, classes: number): SoftmaxMoments {
+export function gaussianSoftmaxMoments(variance: number, classes: number, quadratureUpTo = ROW_QUADRATURE_VARIANCE): SoftmaxMoments {
   if (!(variance >= 0) || !Number.isFinite(variance) || !(classes >= 1) || !Number.isFinite(classes)) {
     return { mean: NaN, second: NaN, logSumExp: NaN };
   }
@@ -78,9 +79,18 @@ export function gaussianSoftmaxMoments(variance: number, classes: number): Softm
     const spread = variance * (1 - 1 / C);
     return { mean: 1 / C, second: (1 + spread) / (C * C), logSumExp: Math.log(C) + spread / 2 };
   }
-  if (variance > ONE_HOT_VARIANCE) {
-    // one-hot limit: the largest logit takes the whole mass, and the log-sum-exp is the largest logit
-    return { mean: 1 / C, second: 1 / C, logSumExp: Math.sqrt(variance) * expectedMaxNormal(C) };
+  if (variance > quadratureUpTo) {
+    // the quadrature at s₀² carried on by the peaked limit's leading order (derived as for peakedRows): 1 − C·E[p²] and
+    // E[ln Σ e^z] − s·E[max] = E[ln(1 + Σ_(k≠max) e^(z_k − z_max))] come from near-ties of the largest two, ∝ 1/s
+    const anchor = gaussianSoftmaxMoments(ROW_QUADRATURE_VARIANCE, C);
+    const r = Math.sqrt(ROW_QUADRATURE_VARIANCE / variance);
+    const top = expectedMaxNormal(C);
+    const s0 = Math.sqrt(ROW_QUADRATURE_VARIANCE);
+    return {
+      mean: 1 / C,
+      second: (1 - (1 - C * anchor.second) * r) / C,
+      logSumExp: Math.sqrt(variance) * top + (anchor.logSumExp - s0 * top) * r,
+    };
   }
   let byVariance = cache.get(C);
   const hit = byVariance?.get(variance);
@@ -115,11 +125,12 @@ function softmaxMoments(variance: number, C: number): SoftmaxMoments {
   const logC = Math.log(C);
   // the cut for E[p] (K = e^(s²/2), result 1/C), E[p²] (K = e^(s²/2)/e, result ≥ 1/C²) and the log-sum-exp
   // (K = C·e^(s²/2), result ≥ ln C)
+  // K's factor e^(s²/2) bounds E[e^(sZ)]; the Gaussian grid ends at Z_RANGE + h, so e^(s·(Z_RANGE + h)) bounds it too
   const cut = Math.min(
     Math.log(MOMENT_CUT / h) - logC,
     Math.log((MOMENT_CUT * Math.E) / h) - 2 * logC,
     Math.log((MOMENT_CUT * logC) / h) - logC,
-  ) - variance / 2;
+  ) - Math.min(variance / 2, s * Z_RANGE + Math.min(0.3, GAUSS_STEP * s));
   const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, C, cut);
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);

@@ -82,10 +82,38 @@ describe("gaussianSoftmaxMoments", () => {
     expect(Math.exp(2) / 100 / exact).toBeGreaterThan(2.5);
   });
 
-  it("one-hot limit above s² = 400: E[p²] → 1/C, continuous with the quadrature within 15%", () => {
-    expect(gaussianSoftmaxMoments(401, 50).second).toBe(1 / 50);
-    expect(rel(gaussianSoftmaxMoments(399, 50).second, 1 / 50)).toBeLessThan(0.15);
-    expect(rel(gaussianSoftmaxMoments(399, 50).logSumExp, gaussianSoftmaxMoments(401, 50).logSumExp)).toBeLessThan(0.01);
+  it("continuous across s² = 400 (once a jump to one-hot, E[p²] = 1/C) and across the end of the quadrature at 2000", () => {
+    for (const C of [4, 50, 1000]) {
+      for (const edge of [400, 2000]) {
+        const below = gaussianSoftmaxMoments(edge - 0.1, C);
+        const above = gaussianSoftmaxMoments(edge + 0.1, C);
+        // 1 − C·E[p²] ∝ 1/s and E[ln Σ e^z] ≈ s·E[max]: a step of 0.2 in s² moves either by about 0.2/(2·edge) relative
+        expect(rel(1 - C * above.second, 1 - C * below.second), `1 − C·E[p²] at s² = ${edge}, C = ${C}`).toBeLessThan(1e-3);
+        expect(rel(above.logSumExp, below.logSumExp), `log-sum-exp at s² = ${edge}, C = ${C}`).toBeLessThan(1e-3);
+        expect(C * above.second).toBeLessThan(1);
+      }
+    }
+  });
+
+  it("agrees with a seeded Monte Carlo past the old cutoff (s² = 500 and 2000, 50 classes) and past the quadrature (8000)", () => {
+    for (const [v, seed] of [[500, 31], [2000, 32], [8000, 33]] as const) {
+      const exact = gaussianSoftmaxMoments(v, 50);
+      const mc = monteCarlo(v, 50, 40000, seed);
+      expect(Math.abs(exact.second - mc.second), `E[p²] at s² = ${v}`).toBeLessThan(4 * mc.secondError);
+      expect(Math.abs(exact.logSumExp - mc.logSumExp), `log-sum-exp at s² = ${v}`).toBeLessThan(0.02 * Math.sqrt(v) + 1e-3);
+    }
+  });
+
+  it("past s² = 2000 the peaked limit's leading order (1 − C·E[p²] and E[ln Σ e^z] − s·E[max] ∝ 1/s) follows the quadrature", () => {
+    for (const C of [4, 1000]) {
+      for (const v of [5000, 10000]) {
+        const carried = gaussianSoftmaxMoments(v, C);
+        const exact = gaussianSoftmaxMoments(v, C, Infinity);
+        // measured when written: within 4e-4 and 3e-6 relative; the next order is O(1/s) relative, so 1.5 times those
+        expect(rel(1 - C * carried.second, 1 - C * exact.second), `1 − C·E[p²] at s² = ${v}, C = ${C}`).toBeLessThan(6e-4);
+        expect(rel(carried.logSumExp, exact.logSumExp), `log-sum-exp at s² = ${v}, C = ${C}`).toBeLessThan(5e-6);
+      }
+    }
   });
 
   it("returns NaN for a negative variance or no classes", () => {
