@@ -135,22 +135,25 @@ function softmaxMoments(variance: number, C: number): SoftmaxMoments {
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);
   const a2 = new Float64Array(latticeLength);
-  latticeTransforms(a0, a1, a2, base, spacing);
+  latticeTransforms(a0, [a1, a2], base, spacing);
   const sums = new Float64Array(3);
   momentSums(steps, low, k, n, weight, a0, a1, a2, C, sums);
   return { mean: (sums[0] as number) * U_STEP, second: (sums[1] as number) * U_STEP, logSumExp: (sums[2] as number) * U_STEP };
 }
 
-/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0, y·e^(−y) into a1, y²·e^(−y) into a2. */
-function latticeTransforms(a0: Float64Array, a1: Float64Array, a2: Float64Array, base: number, spacing: number): void {
+/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0, and y^m·e^(−y) into powers[m − 1] (m = 1, 2, …). */
+function latticeTransforms(a0: Float64Array, powers: readonly Float64Array[], base: number, spacing: number): void {
   const latticeLength = a0.length;
   for (let j = 0; j < latticeLength; j++) {
     const y = Math.exp(base + j * spacing);
     const e = Math.exp(-y);
     a0[j] = -Math.expm1(-y);
     if (e > 0) {
-      a1[j] = y * e;
-      a2[j] = y * y * e;
+      let power = y;
+      for (let m = 0; m < powers.length; m++) {
+        powers[m]![j] = power * e;
+        power *= y;
+      }
     }
   }
 }
@@ -535,7 +538,7 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadrat
   const a2 = new Float64Array(latticeLength);
   const a3 = new Float64Array(latticeLength);
   const a4 = new Float64Array(latticeLength);
-  rowTransforms(a0, a1, a2, a3, a4, base, spacing);
+  latticeTransforms(a0, [a1, a2, a3, a4], base, spacing);
   // running sums per row length: E[p²], E[p³], E[p⁴], E[p_1²p_2²], E[p z], E[p² z²], E[p_1 p_2 z_1 z_2]
   const count = maxKeys - minKeys + 1;
   const sums = Array.from({ length: 7 }, () => new Float64Array(count));
@@ -566,20 +569,6 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadrat
   return rows;
 }
 
-/** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0 and y^m·e^(−y) into a_m. */
-function rowTransforms(a0: Float64Array, a1: Float64Array, a2: Float64Array, a3: Float64Array, a4: Float64Array, base: number, spacing: number): void {
-  for (let j = 0; j < a0.length; j++) {
-    const y = Math.exp(base + j * spacing);
-    const e = Math.exp(-y);
-    a0[j] = -Math.expm1(-y);
-    if (e > 0) {
-      a1[j] = y * e;
-      a2[j] = y * y * e;
-      a3[j] = y * y * y * e;
-      a4[j] = y * y * y * y * e;
-    }
-  }
-}
 
 /**
  * One node of ln t of gaussianSoftmaxRows for every row length: the one-class transforms A_2, A_3, A_4, E[z·y·e^(−y)]
