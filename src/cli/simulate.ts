@@ -289,29 +289,57 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
-  const loss = shown.find((t) => t.countsScaledBy !== undefined && (t.countsScaledBy !== 1 || summedLossCounts(t, result) !== undefined));
-  if (loss !== undefined) {
-    const scaled = loss.countsScaledBy === 1 ? "the loss" : `the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)})`;
-    const held = loss.median.accumulateCounts;
-    const summed = summedLossCounts(loss, result) !== undefined;
-    const where =
-      held !== undefined
-        ? ` and, on the line below, summed in the accumulate format, ${held.format}`
-        : summed
-          ? `, which is also the accumulate format it is summed in`
-          : "";
-    lines.push(
-      `  ${loss.id}: the shares are of ${scaled} kept in the activation format${where}, ` +
-        `as check judges the loss value; the magnitudes are the loss's own. The run keeps the loss in binary64, so ` +
-        (summed ? `only an overflow of the sum (which check says fails) sets the exit code.` : `it sets no exit code.`),
-    );
-  }
+  const loss = scaledLoss(shown, result);
+  if (loss !== undefined) lines.push(`  ${lossNote(loss, result)}`);
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));
   if (result.steps > 0) lines.push("", ...stepLines(result));
   lines.push("", "Assumptions:");
   for (const a of result.assumptions) lines.push(`  - ${a}`);
   lines.push("", ESTIMATE_NOTE);
   return lines.join("\n") + "\n";
+}
+
+/** The loss row whose shares need a word: taken at a loss scale other than 1, or judged as a sum. */
+function scaledLoss(tensors: readonly MeasuredTensor[], result: SimulationResult): MeasuredTensor | undefined {
+  return tensors.find((t) => t.countsScaledBy !== undefined && (t.countsScaledBy !== 1 || summedLossCounts(t, result) !== undefined));
+}
+
+/** What the loss's shares are of and which of them sets the exit code, for the text and the page alike. */
+function lossNote(loss: MeasuredTensor, result: SimulationResult): string {
+  const scaled = loss.countsScaledBy === 1 ? "the loss" : `the loss times the loss scale ${scaleWords(loss.countsScaledBy!)} (${formatValue(loss.median.rms * loss.countsScaledBy!)})`;
+  const held = loss.median.accumulateCounts;
+  const summed = summedLossCounts(loss, result) !== undefined;
+  const where =
+    held !== undefined
+      ? ` and, on the line below, summed in the accumulate format, ${held.format}`
+      : summed
+        ? `, which is also the accumulate format it is summed in`
+        : "";
+  return (
+    `${loss.id}: the shares are of ${scaled} kept in the activation format${where}, ` +
+    `as check judges the loss value; the magnitudes are the loss's own. The run keeps the loss in binary64, so ` +
+    (summed ? `only an overflow of the sum (which check says fails) sets the exit code.` : `it sets no exit code.`)
+  );
+}
+
+/**
+ * The scaled loss's shares on the page as the text gives them: a line in the activation format and, when the plan
+ * accumulates in another format, a line "(accumulate)" for the sum; empty when the loss needs no word.
+ */
+function lossTableHtml(result: SimulationResult): string {
+  const loss = scaledLoss(result.tensors, result);
+  if (loss === undefined) return "";
+  const line = (name: string, c: FormatCounts): string =>
+    `<tr><td>${escapeHtml(name)}</td><td>${escapeHtml(c.format)}</td>` +
+    [c.flushed, c.subnormal, overflowShare(c)].map((x) => `<td>${escapeHtml(share(x))}</td>`).join("") +
+    "</tr>";
+  const held = loss.median.accumulateCounts;
+  return (
+    `<table class="loss"><tr><th>tensor</th><th>format</th><th>flushed</th><th>subnormal</th><th>overflow</th></tr>\n` +
+    line(loss.id, loss.median.counts) +
+    (held !== undefined ? "\n" + line(`${loss.id} (accumulate)`, held) : "") +
+    `</table>\n<p>${escapeHtml(lossNote(loss, result))}</p>`
+  );
 }
 
 /**
@@ -517,12 +545,14 @@ body { font: 13px system-ui, sans-serif; margin: 16px; color: #222; }
 .predicted { fill: #bbb; } .measured { fill: #3a7bd5; opacity: 0.75; }
 .rms-predicted { stroke: #000; stroke-width: 2; } .rms-measured { stroke: #0b3d91; stroke-width: 2; stroke-dasharray: 2 1; }
 .disagrees .label { fill: #b00; font-weight: bold; }
+table.loss { border-collapse: collapse; margin: 8px 0; } table.loss td, table.loss th { padding: 2px 10px; text-align: left; font: 12px monospace; }
 </style></head><body>
 <h1>${escapeHtml(`${result.specName}: measured against predicted magnitudes`)}</h1>
 <p>Plan ${escapeHtml(result.planName)}, ${escapeHtml(lossScaleWords(result))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
 Grey: predicted 1%–99% of element magnitudes (median draw); blue: measured 1%–99% (median over draws); black and dashed blue marks: predicted and measured rms;
 red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.</p>
 ${shrunk}
+${lossTableHtml(result)}
 <svg xmlns="http://www.w3.org/2000/svg" width="${width}" height="${height}" role="img" aria-label="measured and predicted magnitude bands">
 ${ticks.join("")}
 ${body}

@@ -147,3 +147,23 @@ describe("simulate counts the scaled loss in the accumulate format too, as check
     expect(json.tensors.find((t) => t.id === "loss/loss")?.measured.accumulateCounts?.overflowed).toBe(1);
   });
 });
+
+describe("simulate's page (--html) gives the scaled loss's shares as the text does", () => {
+  it("lists the loss and, on a line of its own, the sum in the accumulate format with its overflow share", async () => {
+    const { renderSimulationHtml } = await import("../../src/cli/simulate.js");
+    const report = { result: runSimulation(spec(accumulating("binary16", "1024")), { round: false }) };
+    const html = renderSimulationHtml(report);
+    // 1024 · (64 · ln 10 ≈ 147) passes binary16's 65504 (IEEE 754-2019 Table 3.5): the one summed value overflows
+    const row = /<tr><td>loss\/loss \(accumulate\)<\/td><td>binary16<\/td>(.*?)<\/tr>/.exec(html);
+    expect(row?.[1]).toMatch(/<td>100(\.0)?%<\/td>$/);
+    // binary32 holds it (largest finite about 3.4e38, IEEE 754-2019 Table 3.5): the activation format's line shows none
+    expect(html).toMatch(/<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0<\/td>){3}<\/tr>/);
+    expect(html).toMatch(/summed in the accumulate format, binary16, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
+  });
+
+  it("has no loss table when nothing scales the loss nor sums it in another format", async () => {
+    const { renderSimulationHtml } = await import("../../src/cli/simulate.js");
+    const report = { result: runSimulation(spec(summed("binary32", "1")), { round: false }) };
+    expect(renderSimulationHtml(report)).not.toContain("loss/loss (accumulate)");
+  });
+});
