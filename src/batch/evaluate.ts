@@ -58,8 +58,7 @@ export function issuesError(issues: readonly SpecIssue[], originalLine: (line: n
   if (!first) return { kind: "input", message: "the spec is not valid" };
   const more = mapped.length - 1;
   const message = formatSpecIssue(first) + (more > 0 ? ` (and ${more} more ${more === 1 ? "problem" : "problems"})` : "");
-  if (more === 0) return { kind: "input", message, position: issuePosition(first) };
-  // only on errors of several problems, so the rows of one keep their bytes
+  // on every row of spec problems, one or several, so that a script reads one shape
   const all = mapped.map((issue) => ({ message: formatSpecIssue(issue), position: issuePosition(issue) }));
   return { kind: "input", message, position: issuePosition(first), issues: all };
 }

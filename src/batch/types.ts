@@ -74,8 +74,9 @@ export interface RowError {
   message: string;
   position?: ErrorPosition;
   /**
-   * every problem of the spec, in the file's order, when it has more than one (the `message` gives the first and a
-   * count of the others): each `message` a whole line starting with its position, as `check` prints it
+   * every problem of the spec, in the file's order, one or more (the `message` gives the first and a count of the
+   * others): each `message` a whole line starting with its position, as `check` prints it. Absent for an error that is
+   * not the spec's problems (a file that cannot be read without a position, a failure inside headroom)
    */
   issues?: { message: string; position: ErrorPosition }[];
 }

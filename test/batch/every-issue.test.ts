@@ -92,14 +92,12 @@ describe("a batch row carries every problem of its spec, each at its file:line:c
 });
 
 describe("a spec with one problem", () => {
-  test("its row keeps the bytes it had (no issues key); the CSV's last column holds its one line", async () => {
+  test("its row has the same shape as a row of several (issues with its one problem); the CSV's last column holds its one line", async () => {
     const one = BROKEN.replace("batch: -8", "batch: 8").replace("width: 0", "width: 16");
     const result = await evaluateTask({ file: "gauge.yaml", variant: null }, { ...hooks, readText: () => one });
-    expect(result.status === "error" && result.error).toEqual({
-      kind: "input",
-      message: 'gauge.yaml:10:20: layers[2].widht: unknown key "widht" (did you mean "width"?)',
-      position: { file: "gauge.yaml", line: 10, column: 20 },
-    });
+    const message = 'gauge.yaml:10:20: layers[2].widht: unknown key "widht" (did you mean "width"?)';
+    const position = { file: "gauge.yaml", line: 10, column: 20 };
+    expect(result.status === "error" && result.error).toEqual({ kind: "input", message, position, issues: [{ message, position }] });
     if (result.status !== "error") return;
     const records = parseRfc4180(renderBatchCsv([{ index: 0, file: "gauge.yaml", variant: null, status: "error", error: result.error }]));
     expect(records[1]![BATCH_CSV_HEADER.indexOf("error_issues")]).toBe(result.error.message);

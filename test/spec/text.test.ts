@@ -52,6 +52,8 @@ describe("reading spec files that are not UTF-8", () => {
 
   test("a batch row given the file's bytes is an input error at the same position", async () => {
     const row = await evaluateTask({ file, variant: null }, { readText: () => bytes(SPEC, "name: tide", [0xe9], "\n"), judge: () => { throw new Error("not judged"); } });
-    expect(row).toEqual({ status: "error", error: { kind: "input", message: `${file}:4:11: the file is not UTF-8 text: byte 0xe9 here is not valid UTF-8; save the file as UTF-8`, position: { file, line: 4, column: 11 } } });
+    const message = `${file}:4:11: the file is not UTF-8 text: byte 0xe9 here is not valid UTF-8; save the file as UTF-8`;
+    const position = { file, line: 4, column: 11 };
+    expect(row).toEqual({ status: "error", error: { kind: "input", message, position, issues: [{ message, position }] } });
   });
 });
