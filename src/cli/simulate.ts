@@ -1,4 +1,5 @@
 import { getFormat } from "../formats/index.js";
+import { hasFiniteMagnitudes } from "../simulate/stats.js";
 import type { MagnitudeProfile } from "../magnitude/index.js";
 import { predict } from "../magnitude/index.js";
 import { escapeHtml } from "../report/html.js";
@@ -14,6 +15,7 @@ import {
   type DefaultLossScaleAnswer,
   type FormatCounts,
   type MeasuredTensor,
+  type TensorStats,
   type ShrinkFactors,
   type SimulationReport,
   type SimulationResult,
@@ -200,6 +202,18 @@ function share(x: number): string {
   return x === 0 ? "0" : formatPercent(x);
 }
 
+/** A measured magnitude, or "none finite" when every nonzero element was infinite or NaN (its 0 is no measurement). */
+function magnitudeCell(stats: TensorStats, value: number, blank = ""): string {
+  return hasFiniteMagnitudes(stats) ? formatValue(value) : blank;
+}
+
+/** The measured rms in words, with the share left out of it when some elements were infinite or NaN. */
+function measuredRmsWords(stats: TensorStats): string {
+  if (!hasFiniteMagnitudes(stats)) return `measured rms: none finite (${formatPercent(stats.nonFiniteFraction)} infinite or NaN)`;
+  const left = stats.nonFiniteFraction > 0 ? ` over the finite values (${formatPercent(stats.nonFiniteFraction)} infinite or NaN)` : "";
+  return `measured rms ${formatValue(stats.rms)}${left}`;
+}
+
 /** The terminal report: header, what was shrunk, the tensor table, disagreements, optimizer steps, assumptions. */
 export function renderSimulationText(report: SimulationReport, options: { all?: boolean } = {}): string {
   const { result, comparison } = report;
@@ -228,11 +242,14 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       (t.median.accumulateCounts !== undefined && simulatedFinding(t.median.accumulateCounts)) ||
       byId.get(t.id)?.disagrees === true,
   );
+  // a column for elements infinite or NaN in the run (outside rms, max, quantiles) only when some shown tensor has any
+  const nonFinite = shown.some((t) => t.median.nonFiniteFraction > 0 || (t.after?.nonFiniteFraction ?? 0) > 0);
   const columns = [
     { title: "tensor", maxWidth: 60, cut: "middle" as const },
     { title: "format" },
     { title: "predicted rms" },
-    { title: "measured rms" },
+    // right-aligned as the numbers it holds, "none finite" included
+    { title: "measured rms", align: "right" as const },
     { title: "diff" },
     ...(result.shrink.shrunk ? [{ title: "full size" }] : []),
     { title: "max" },
@@ -240,11 +257,12 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
     { title: "p50" },
     { title: "p99" },
     { title: "zeros" },
+    ...(nonFinite ? [{ title: "non-finite" }] : []),
     { title: "flushed pred" },
     { title: "flushed" },
     { title: "subnormal" },
     { title: "overflow" },
-    ...(result.steps > 0 ? [{ title: `rms after ${result.steps}` }] : []),
+    ...(result.steps > 0 ? [{ title: `rms after ${result.steps}`, align: "right" as const }] : []),
   ];
   const cells: Cell[][] = shown.flatMap((t) => {
     const row = byId.get(t.id);
@@ -267,28 +285,35 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       t.id,
       m.counts.format,
       row ? formatValue(row.predictedRms) : "",
-      formatValue(m.rms),
-      row ? formatBinades(row.differenceBinades) : "",
+      magnitudeCell(m, m.rms, "none finite"),
+      row && !Number.isNaN(row.differenceBinades) ? formatBinades(row.differenceBinades) : "",
       ...(result.shrink.shrunk ? [row?.fullSizeRms !== undefined ? formatValue(row.fullSizeRms) : ""] : []),
-      formatValue(m.max),
-      formatValue(m.quantiles[0]),
-      formatValue(m.quantiles[2]),
-      formatValue(m.quantiles[4]),
+      magnitudeCell(m, m.max),
+      magnitudeCell(m, m.quantiles[0]),
+      magnitudeCell(m, m.quantiles[2]),
+      magnitudeCell(m, m.quantiles[4]),
       share(m.zeroFraction),
+      ...(nonFinite ? [share(m.nonFiniteFraction)] : []),
       row && !Number.isNaN(row.predictedFlushed) ? share(row.predictedFlushed) : "",
       share(m.counts.flushed),
       share(m.counts.subnormal),
       share(m.counts.overflowed + m.counts.saturated + m.counts.nonFinite),
-      ...(result.steps > 0 ? [t.after !== undefined ? formatValue(t.after.rms) : ""] : []),
+      ...(result.steps > 0 ? [t.after !== undefined ? magnitudeCell(t.after, t.after.rms, "none finite") : ""] : []),
     ];
     return [line, ...accumulateLine];
   });
   lines.push(
     options.all === true
-      ? `Every tensor (${result.tensors.length}); diff = log2(measured / predicted rms), rms over nonzero elements, quantiles of |x|:`
+      ? `Every tensor (${result.tensors.length}); diff = log2(measured / predicted rms), rms over finite nonzero elements, quantiles of |x|:`
       : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
+  if (nonFinite) {
+    lines.push(
+      "  non-finite: the share of elements infinite or NaN in the run (after an overflow upstream), left out of rms, max and " +
+        "quantiles, which are of the finite nonzero elements; \"none finite\": no finite nonzero element was left to measure.",
+    );
+  }
   const loss = scaledLoss(shown, result);
   if (loss !== undefined) lines.push(`  ${lossNote(loss, result)}`);
   if (comparison !== undefined) lines.push("", ...disagreementLines(comparison));
@@ -377,7 +402,8 @@ function describe(r: ComparisonRow): string {
   const zero = zeroAfterStorage(m);
   const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
   const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
-  return `${r.id}: measured rms ${formatValue(m.rms)}, predicted ${formatValue(r.predictedRms)} (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)${zeroText}`;
+  const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)`;
+  return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}`;
 }
 
 function stepLines(result: SimulationResult): string[] {
@@ -397,6 +423,11 @@ function stepLines(result: SimulationResult): string[] {
   });
   out.push(renderTable([{ title: "step" }, { title: "learning rate" }, { title: "loss before" }, { title: "update" }, { title: "most swamped" }, { title: "largest update/weight" }], cells).trimEnd());
   return out;
+}
+
+/** A tensor's statistics for JSON: rms, max and quantiles null when no finite element was left to measure (not 0). */
+function statsJson(stats: TensorStats): Omit<TensorStats, "rms" | "max" | "quantiles"> & { rms: number | null; max: number | null; quantiles: TensorStats["quantiles"] | null } {
+  return hasFiniteMagnitudes(stats) ? stats : { ...stats, rms: null, max: null, quantiles: null };
 }
 
 /** JSON: the run's settings, every tensor with its measured median beside the prediction, disagreements, steps. */
@@ -425,8 +456,8 @@ export function renderSimulationJson(report: SimulationReport): string {
         role: t.role,
         slot: t.slot,
         ...(t.countsScaledBy !== undefined ? { countsScaledBy: t.countsScaledBy } : {}),
-        measured: t.median,
-        ...(t.after !== undefined ? { afterSteps: t.after } : {}),
+        measured: statsJson(t.median),
+        ...(t.after !== undefined ? { afterSteps: statsJson(t.after) } : {}),
         ...(r !== undefined
           ? {
               predicted: {
@@ -496,7 +527,9 @@ export function renderSimulationHtml(report: SimulationReport): string {
   const hi = Math.ceil(Math.max(0, ...logs)) + 1;
   const width = 960;
   const left = 330;
-  const right = width - 20;
+  const nonFinite = rows.some((r) => r.measured.median.nonFiniteFraction > 0);
+  // room on the right for the share infinite or NaN
+  const right = width - (nonFinite ? 170 : 20);
   const rowHeight = 16;
   const top = 34;
   const x = (log2: number): number => left + ((Math.min(Math.max(log2, lo), hi) - lo) / (hi - lo)) * (right - left);
@@ -520,15 +553,23 @@ export function renderSimulationHtml(report: SimulationReport): string {
           ? `<rect x="${f(x(b[0]))}" y="${y + inset}" width="${f(Math.max(x(b[1]) - x(b[0]), 1.5))}" height="${rowHeight - 2 * inset}" class="${cls}"/>`
           : "";
       const mark = (v: number, cls: string): string => (v > 0 ? `<line x1="${f(x(Math.log2(v)))}" x2="${f(x(Math.log2(v)))}" y1="${y + 1}" y2="${y + rowHeight - 1}" class="${cls}"/>` : "");
-      const title = `${r.id}: predicted rms ${formatValue(r.predictedRms)}, measured ${formatValue(r.measured.median.rms)} (${formatBinades(r.differenceBinades)} binades), ${r.format}`;
+      const m = r.measured.median;
+      const measuredText = measuredRmsWords(m).replace(/^measured rms/, "measured");
+      const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${formatBinades(r.differenceBinades)} binades)`;
+      const title = `${r.id}: predicted rms ${formatValue(r.predictedRms)}, ${measuredText}${difference}, ${r.format}`;
+      const lost =
+        m.nonFiniteFraction > 0
+          ? `<text x="${right + 6}" y="${y + rowHeight - 4}" class="nonfinite">${escapeHtml(`${hasFiniteMagnitudes(m) ? "" : "none finite, "}∞/NaN ${formatPercent(m.nonFiniteFraction)}`)}</text>`
+          : "";
       return (
         `<g${r.disagrees ? ' class="disagrees"' : ""}><title>${escapeHtml(title)}</title>` +
         `<text x="${left - 6}" y="${y + rowHeight - 4}" class="label">${escapeHtml(r.id.length > 48 ? "…" + r.id.slice(-47) : r.id)}</text>` +
         band(predicted, "predicted", 1) +
         band(measured, "measured", 4) +
         mark(r.predictedRms, "rms-predicted") +
-        mark(r.measured.median.rms, "rms-measured") +
+        (hasFiniteMagnitudes(m) ? mark(m.rms, "rms-measured") : "") +
         edges +
+        lost +
         "</g>"
       );
     })
@@ -544,13 +585,18 @@ body { font: 13px system-ui, sans-serif; margin: 16px; color: #222; }
 .grid { stroke: #eee; } .edge { stroke: #c33; stroke-width: 1.5; }
 .predicted { fill: #bbb; } .measured { fill: #3a7bd5; opacity: 0.75; }
 .rms-predicted { stroke: #000; stroke-width: 2; } .rms-measured { stroke: #0b3d91; stroke-width: 2; stroke-dasharray: 2 1; }
-.disagrees .label { fill: #b00; font-weight: bold; }
+.disagrees .label { fill: #b00; font-weight: bold; } .nonfinite { font: 10px monospace; fill: #b00; }
 table.loss { border-collapse: collapse; margin: 8px 0; } table.loss td, table.loss th { padding: 2px 10px; text-align: left; font: 12px monospace; }
 </style></head><body>
 <h1>${escapeHtml(`${result.specName}: measured against predicted magnitudes`)}</h1>
 <p>Plan ${escapeHtml(result.planName)}, ${escapeHtml(lossScaleWords(result))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
 Grey: predicted 1%–99% of element magnitudes (median draw); blue: measured 1%–99% (median over draws); black and dashed blue marks: predicted and measured rms;
-red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.</p>
+red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.${
+    nonFinite
+      ? "\nOn the right, ∞/NaN: the share of elements infinite or NaN in the run (after an overflow upstream), left out of the measured band and rms; " +
+        "“none finite”: no finite nonzero element was left to measure."
+      : ""
+  }</p>
 ${shrunk}
 ${lossTableHtml(result)}
 <svg xmlns="http://www.w3.org/2000/svg" width="${width}" height="${height}" role="img" aria-label="measured and predicted magnitude bands">

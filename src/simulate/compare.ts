@@ -6,6 +6,7 @@
 import { getFormat, type Format } from "../formats/index.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { erf, normalCdf } from "../ops/activation/moments.js";
+import { hasFiniteMagnitudes } from "./stats.js";
 import type { MeasuredTensor, SimulationResult } from "./types.js";
 
 /**
@@ -15,6 +16,11 @@ import type { MeasuredTensor, SimulationResult } from "./types.js";
  */
 export function zeroAfterStorage(stats: { zeroFraction: number; counts: { flushed: number } }): number {
   return stats.zeroFraction + stats.counts.flushed;
+}
+
+/** A row's distance in binades for ordering disagreements; a row with no finite measurement comes first. */
+function distance(r: ComparisonRow): number {
+  return Number.isNaN(r.differenceBinades) ? Infinity : Math.abs(r.differenceBinades);
 }
 
 /** How far apart prediction and measurement may be before a row counts as a disagreement. */
@@ -41,7 +47,7 @@ export interface ComparisonRow {
   predictedLog2Spread: number;
   /** the prediction's profile at initialisation */
   predictedProfile: MagnitudeProfile;
-  /** log2(measured rms / predicted rms): positive when the measurement is larger */
+  /** log2(measured rms / predicted rms): positive when the measurement is larger; NaN when no finite value was measured */
   differenceBinades: number;
   predictedZeroFraction: number;
   /** predicted share of elements flushed to zero in the format (NaN for 8-bit formats stored with scale factors) */
@@ -137,7 +143,8 @@ export function compareWithPrediction(
     }
     const format = getFormat(measured.median.counts.format);
     const m = measured.median;
-    const differenceBinades = m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
+    // no finite magnitude measured (all overflowed upstream): nothing to set against the prediction, NaN, a disagreement
+    const differenceBinades = !hasFiniteMagnitudes(m) ? NaN : m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
     // 8-bit formats with scale factors: the prediction carries no scale, so flushed fractions are not compared
     const predictedFlushed = scaled8 && format.bits === 8 ? NaN : predictedFlushedFraction(p.start, format, flushSubnormals);
     const row: ComparisonRow = {
@@ -166,6 +173,6 @@ export function compareWithPrediction(
   }
   const measuredIds = new Set(result.tensors.map((t) => t.id));
   const predictedOnly = prediction.tensors.filter((t) => !measuredIds.has(t.id)).map((t) => t.id);
-  const disagreements = rows.filter((r) => r.disagrees).sort((a, b) => Math.abs(b.differenceBinades) - Math.abs(a.differenceBinades));
+  const disagreements = rows.filter((r) => r.disagrees).sort((a, b) => distance(b) - distance(a));
   return { tolerance, rows, disagreements, measuredOnly, predictedOnly };
 }

@@ -28,14 +28,15 @@ function quantile(sorted: Float64Array, p: number): number {
 }
 
 /**
- * Measure a tensor: exact zeros, rms of the nonzero elements, largest magnitude, quantiles of the nonzero
- * magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format` (after
+ * Measure a tensor: exact zeros, the share infinite or NaN, rms of the finite nonzero elements, largest finite
+ * magnitude, quantiles of the finite nonzero magnitudes, and the fractions flushed, subnormal, overflowed and saturated when stored in `format` (after
  * multiplying by the storage scales of 8-bit scaling, when given; with per-block scales, also the share the block
  * conversion's own clamp clipped).
  */
 export function measureTensor(data: Float64Array, format: Format, options: RoundOptions, scales: StorageScales = 1): TensorStats {
   const n = data.length;
   let zeros = 0;
+  let nonFinite = 0;
   let sumSquares = 0;
   let nonzero = 0;
   let max = 0;
@@ -46,7 +47,11 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
       continue;
     }
     const a = Math.abs(v);
-    if (!Number.isFinite(a)) continue;
+    // an infinite or NaN element (an overflow upstream) has no magnitude to add: counted apart, not as rms 0
+    if (!Number.isFinite(a)) {
+      nonFinite++;
+      continue;
+    }
     nonzero++;
     sumSquares += a * a;
     if (a > max) max = a;
@@ -80,11 +85,20 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
   return {
     elements: n,
     zeroFraction: zeros / total,
+    nonFiniteFraction: nonFinite / total,
     rms: nonzero > 0 ? Math.sqrt(sumSquares / nonzero) : 0,
     max,
     quantiles: [quantile(sorted, 0.01), quantile(sorted, 0.1), quantile(sorted, 0.5), quantile(sorted, 0.9), quantile(sorted, 0.99)],
     counts,
   };
+}
+
+/**
+ * Whether the magnitudes (rms, max, quantiles) measured anything: not when every nonzero element was infinite or NaN,
+ * where their 0 stands for "none finite", not for a tensor of zeros.
+ */
+export function hasFiniteMagnitudes(stats: Pick<TensorStats, "rms" | "nonFiniteFraction">): boolean {
+  return stats.rms > 0 || stats.nonFiniteFraction === 0;
 }
 
 function median(values: number[]): number {
@@ -102,6 +116,7 @@ export function medianStats(draws: readonly TensorStats[]): TensorStats {
   const stats: TensorStats = {
     elements: first.elements,
     zeroFraction: pick((s) => s.zeroFraction),
+    nonFiniteFraction: pick((s) => s.nonFiniteFraction),
     rms: pick((s) => s.rms),
     max: pick((s) => s.max),
     quantiles: [0, 1, 2, 3, 4].map((i) => pick((s) => s.quantiles[i]!)) as TensorStats["quantiles"],

@@ -95,11 +95,16 @@ export interface TensorStats {
   elements: number;
   /** share of elements exactly zero before storage */
   zeroFraction: number;
-  /** root mean square of the nonzero elements */
+  /**
+   * share of elements infinite or NaN before storage (in the binary64 run, after an overflow upstream): left out of
+   * rms, max and quantiles, which are 0 when no finite nonzero element is left (outputs then say "none finite")
+   */
+  nonFiniteFraction: number;
+  /** root mean square of the finite nonzero elements */
   rms: number;
   /** largest finite magnitude */
   max: number;
-  /** quantiles of the nonzero magnitudes: 1%, 10%, 50%, 90%, 99% */
+  /** quantiles of the finite nonzero magnitudes: 1%, 10%, 50%, 90%, 99% */
   quantiles: [number, number, number, number, number];
   counts: FormatCounts;
   /**
