@@ -40,10 +40,12 @@ export interface SoftmaxMoments {
 
 const Z_RANGE = 9; // φ(9) ≈ 1e-18
 /**
- * Above this logit variance (s = 20) gaussianSoftmaxPairMoment takes the one-hot limit, interpolated in the
- * correlation (its double sum grows as s⁴); gaussianSoftmaxMoments and the rows of attention do not.
+ * Above this logit variance (s = 20; the double sum takes about a second here and grows as s⁴)
+ * gaussianSoftmaxPairMoment carries its quadrature on by the peaked limit's leading order (pairPeakedLimit).
  */
-const ONE_HOT_VARIANCE = 400;
+const PAIR_QUADRATURE_VARIANCE = 400;
+/** Above this correlation the one-hot pair limit is carried to 1/C by its leading order in √(1 − c) (pairPeakedLimit). */
+const PAIR_LIMIT_CORRELATION = 0.999;
 /** Below this logit variance the lattice would need U_STEP/(U_STEP·s) points per step; the expansion is exact to 1e-8. */
 const SMALL_VARIANCE = 1e-4;
 const U_STEP = 0.25;
@@ -215,7 +217,7 @@ const PAIR_STEP = 0.5;
  * the ε part, taken by the trapezoid rule on one lattice (Trefethen & Weideman 2014), with a step of 0.5 in ln t and
  * ln u (discretisation error near e^(−π²/0.5) ≈ 3e-9). Below c·s² = 10⁻³ the
  * first-order Hermite expansion 1/C² + c·s²·(1/C − E[p²])²·C/(C − 1) (derived: Σ_k E[∂p_1/∂x_k]²) is used;
- * above s² = 400 the one-hot limit is interpolated linearly in c between 1/C² and 1/C (rough).
+ * above s² = 400 the quadrature there is carried on by the peaked limit's leading order (pairPeakedLimit, ∝ 1/s).
  * Returns NaN for a negative variance, a correlation outside [−1, 1] or fewer than one class.
  * @example gaussianSoftmaxPairMoment(1, 1, 10) === gaussianSoftmaxMoments(1, 10).second
  */
@@ -227,7 +229,12 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   if (c === 0 || variance === 0) return 1 / (C * C);
   if (c === 1) return gaussianSoftmaxMoments(variance, C).second;
   const commonVariance = c * variance;
-  if (variance > ONE_HOT_VARIANCE) return 1 / (C * C) + c * (1 / C - 1 / (C * C));
+  if (variance > PAIR_QUADRATURE_VARIANCE) {
+    // the quadrature at s₀ = 20 carried on by the peaked limit's leading order (derived as for peakedRows): both rows
+    // are one-hot except near-ties of their largest two logits, within O(1) of each other, of probability ∝ 1/s
+    const limit = pairPeakedLimit(c, C);
+    return limit + (gaussianSoftmaxPairMoment(PAIR_QUADRATURE_VARIANCE, c, C) - limit) * Math.sqrt(PAIR_QUADRATURE_VARIANCE / variance);
+  }
   if (commonVariance < 1e-3) {
     const m2 = gaussianSoftmaxMoments(variance, C).second;
     return 1 / (C * C) + (commonVariance * (1 / C - m2) ** 2 * C) / (C - 1);
@@ -254,6 +261,77 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   byCorrelation.set(c, result);
   pairCached++;
   return result;
+}
+
+// memo of pairPeakedLimit by class count, then correlation
+const pairLimitCache = new Map<number, Map<number, number>>();
+
+/**
+ * The s → ∞ limit of gaussianSoftmaxPairMoment: P(class 1 is the largest logit in both samples) =
+ * E[Φ₂(x, y; c)^(C−1)] over class 1's standardised logits (x, y), correlation c (the other classes independent).
+ * With x = αu + βw, y = αu − βw (α² = (1 + c)/2, β² = (1 − c)/2; u, w independent N(0, 1)) and
+ * Φ₂(x, y; c) = E_b[Φ((x − √c·b)/σ)·Φ((y − √c·b)/σ)], σ = √(1 − c) (the common-factor form), all three are trapezoid
+ * sums (Trefethen & Weideman 2014) whose steps are multiples of one spacing d of the argument of Φ, so Φ is tabled
+ * once on that lattice. Above c = 0.999 the b step would shrink as σ: there 1/C − limit ∝ σ (derived: the two
+ * argmaxes differ only when the largest two logits lie within O(σ)) carries the value at 0.999 on to 1/C at c = 1.
+ */
+function pairPeakedLimit(c: number, C: number): number {
+  if (c > PAIR_LIMIT_CORRELATION) {
+    const edge = pairPeakedLimit(PAIR_LIMIT_CORRELATION, C);
+    return 1 / C - (1 / C - edge) * Math.sqrt((1 - c) / (1 - PAIR_LIMIT_CORRELATION));
+  }
+  let byCorrelation = pairLimitCache.get(C);
+  const hit = byCorrelation?.get(c);
+  if (hit !== undefined) return hit;
+  const sigma = Math.sqrt(1 - c);
+  const root = Math.sqrt(c);
+  const alpha = Math.sqrt((1 + c) / 2);
+  // the largest of C normals has a spread near 1/√(2 ln C), which Φ^(C−1) follows in u and w: 0.3 of it per step
+  const outer = Math.min(0.25, 0.3 / Math.sqrt(2 * Math.log(C)));
+  const inner = Math.min(0.3, (GAUSS_STEP * root) / sigma); // b step in units of the argument: 0.3 as Z in the moments
+  const d = Math.min(inner, (outer * alpha) / sigma, outer / Math.SQRT2);
+  const kb = Math.floor(inner / d);
+  const ku = Math.floor((outer * alpha) / sigma / d);
+  const kw = Math.floor(outer / Math.SQRT2 / d);
+  const hb = (kb * d * sigma) / root;
+  const hu = (ku * d * sigma) / alpha;
+  const hw = kw * d * Math.SQRT2;
+  const nb = 2 * Math.ceil(Z_RANGE / hb) + 1;
+  const nu = 2 * Math.ceil(Z_RANGE / hu) + 1;
+  const nw = 2 * Math.ceil(Z_RANGE / hw) + 1;
+  const cb = (nb - 1) / 2;
+  const cu = (nu - 1) / 2;
+  const cw = (nw - 1) / 2;
+  const middle = ku * cu + kb * cb + kw * cw; // the argument d·m of Φ at table index m + middle
+  const phi = new Float64Array(2 * middle + 1);
+  for (let m = 0; m < phi.length; m++) phi[m] = normalCdf((m - middle) * d);
+  const result = peakedPairSum(normalisedGaussianWeights(nu, hu), normalisedGaussianWeights(nw, hw), normalisedGaussianWeights(nb, hb), ku, kw, kb, middle, phi, C);
+  if (byCorrelation === undefined) {
+    byCorrelation = new Map();
+    pairLimitCache.set(C, byCorrelation);
+  }
+  byCorrelation.set(c, result);
+  return result;
+}
+
+/** The triple sum of pairPeakedLimit (w ≥ 0 only: Φ₂ is symmetric in x and y, so w and −w give the same term). */
+function peakedPairSum(wu: Float64Array, ww: Float64Array, wb: Float64Array, ku: number, kw: number, kb: number, middle: number, phi: Float64Array, C: number): number {
+  const cu = (wu.length - 1) / 2;
+  const cw = (ww.length - 1) / 2;
+  const cb = (wb.length - 1) / 2;
+  let sum = 0;
+  for (let i = 0; i < wu.length; i++) {
+    for (let j = cw; j < ww.length; j++) {
+      const weight = (wu[i] as number) * (ww[j] as number) * (j === cw ? 1 : 2);
+      if (weight < 1e-300) continue;
+      const mx = middle + ku * (i - cu) + kw * (j - cw) + kb * cb;
+      const my = middle + ku * (i - cu) - kw * (j - cw) + kb * cb;
+      let joint = 0;
+      for (let l = 0; l < wb.length; l++) joint += (wb[l] as number) * (phi[mx - kb * l] as number) * (phi[my - kb * l] as number);
+      if (joint > 0) sum += weight * Math.exp((C - 1) * Math.log(joint));
+    }
+  }
+  return sum;
 }
 
 /** gaussianSoftmaxPairMoment past its special cases and its memo (commonVariance = c·variance). */

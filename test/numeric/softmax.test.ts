@@ -183,4 +183,51 @@ describe("gaussianSoftmaxPairMoment", () => {
       expect(Math.abs(gaussianSoftmaxPairMoment(v, c, 10) - mean)).toBeLessThan(4 * error);
     }
   });
+
+  it("past s² = 400 no jump: the quadrature there carried on by the peaked limit (10 classes, c = 0.5; before, 0.0293 became 0.055)", () => {
+    const below = gaussianSoftmaxPairMoment(399.999, 0.5, 10);
+    const above = gaussianSoftmaxPairMoment(400.001, 0.5, 10);
+    expect(Math.abs(above / below - 1)).toBeLessThan(1e-6);
+  });
+
+  it("s → ∞, two classes: both samples' class 1 wins with the orthant probability 1/4 + asin(c)/(2π) (Sheppard 1899, Phil. Trans. A 192)", () => {
+    for (const c of [0.3, 0.9, 0.99]) {
+      expect(Math.abs(gaussianSoftmaxPairMoment(1e12, c, 2) / (0.25 + Math.asin(c) / (2 * Math.PI)) - 1)).toBeLessThan(1e-6);
+    }
+  });
+
+  it("agrees with a seeded Monte Carlo within 4 standard errors past s² = 400 (10 classes, s² = 500 and 2000)", () => {
+    for (const [v, c] of [[500, 0.5], [2000, 0.5], [2000, 0.9]] as const) {
+      const random = createRandom(7);
+      const s = Math.sqrt(v);
+      const samples = 100000;
+      let sum = 0;
+      let sumSquares = 0;
+      const zn = new Float64Array(10);
+      const zm = new Float64Array(10);
+      for (let r = 0; r < samples; r++) {
+        let mn = -Infinity;
+        let mm = -Infinity;
+        for (let j = 0; j < 10; j++) {
+          const common = Math.sqrt(c) * random.normal();
+          zn[j] = s * (common + Math.sqrt(1 - c) * random.normal());
+          zm[j] = s * (common + Math.sqrt(1 - c) * random.normal());
+          mn = Math.max(mn, zn[j] as number);
+          mm = Math.max(mm, zm[j] as number);
+        }
+        let sn = 0;
+        let sm = 0;
+        for (let j = 0; j < 10; j++) {
+          sn += Math.exp((zn[j] as number) - mn);
+          sm += Math.exp((zm[j] as number) - mm);
+        }
+        const product = Math.exp((zn[0] as number) - mn + (zm[0] as number) - mm) / (sn * sm);
+        sum += product;
+        sumSquares += product * product;
+      }
+      const mean = sum / samples;
+      const error = Math.sqrt((sumSquares / samples - mean * mean) / samples);
+      expect(Math.abs(gaussianSoftmaxPairMoment(v, c, 10) - mean)).toBeLessThan(4 * error);
+    }
+  });
 });
