@@ -217,11 +217,12 @@ const PAIR_STEP = 0.5;
  * the ε part, taken by the trapezoid rule on one lattice (Trefethen & Weideman 2014), with a step of 0.5 in ln t and
  * ln u (discretisation error near e^(−π²/0.5) ≈ 3e-9). Below c·s² = 10⁻³ the
  * first-order Hermite expansion 1/C² + c·s²·(1/C − E[p²])²·C/(C − 1) (derived: Σ_k E[∂p_1/∂x_k]²) is used;
- * above s² = 400 the quadrature there is carried on by the peaked limit's leading order (pairPeakedLimit, ∝ 1/s).
+ * past `quadratureUpTo` (default 400) the quadrature there is carried on by the peaked limit's leading order
+ * (pairPeakedLimit; the approach ∝ 1/s at c = 1, ∝ 1/(s²σ) for s·σ ≫ 1, σ² = 1 − c).
  * Returns NaN for a negative variance, a correlation outside [−1, 1] or fewer than one class.
  * @example gaussianSoftmaxPairMoment(1, 1, 10) === gaussianSoftmaxMoments(1, 10).second
  */
-export function gaussianSoftmaxPairMoment(variance: number, correlation: number, classes: number): number {
+export function gaussianSoftmaxPairMoment(variance: number, correlation: number, classes: number, quadratureUpTo = PAIR_QUADRATURE_VARIANCE): number {
   if (!(variance >= 0) || !Number.isFinite(variance) || !(correlation >= -1 && correlation <= 1) || !(classes >= 1) || !Number.isFinite(classes)) return NaN;
   const C = classes;
   const c = Math.max(correlation, 0); // a negative correlation between samples is not modelled: taken as 0
@@ -229,11 +230,14 @@ export function gaussianSoftmaxPairMoment(variance: number, correlation: number,
   if (c === 0 || variance === 0) return 1 / (C * C);
   if (c === 1) return gaussianSoftmaxMoments(variance, C).second;
   const commonVariance = c * variance;
-  if (variance > PAIR_QUADRATURE_VARIANCE) {
-    // the quadrature at s₀ = 20 carried on by the peaked limit's leading order (derived as for peakedRows): both rows
-    // are one-hot except near-ties of their largest two logits, within O(1) of each other, of probability ∝ 1/s
+  if (variance > quadratureUpTo) {
+    // the quadrature at s₀ = 20 carried on by the peaked limit's leading order (derived): both rows are one-hot except
+    // near-ties (within O(1)) of their largest two logits, of probability ∝ 1/s; where the samples' own parts differ
+    // by s·σ ≫ 1 a tie in one alone cancels (σ(Δ) − [Δ > 0] is odd) and only joint ties, ∝ 1/(s²σ), remain. The
+    // factor 1/(s·√(1 + s²σ²)) has both ends (derived); between them it is an interpolation, not derived
     const limit = pairPeakedLimit(c, C);
-    return limit + (gaussianSoftmaxPairMoment(PAIR_QUADRATURE_VARIANCE, c, C) - limit) * Math.sqrt(PAIR_QUADRATURE_VARIANCE / variance);
+    const decay = (sq: number): number => 1 / Math.sqrt(sq * (1 + (1 - c) * sq));
+    return limit + (gaussianSoftmaxPairMoment(PAIR_QUADRATURE_VARIANCE, c, C) - limit) * (decay(variance) / decay(PAIR_QUADRATURE_VARIANCE));
   }
   if (commonVariance < 1e-3) {
     const m2 = gaussianSoftmaxMoments(variance, C).second;

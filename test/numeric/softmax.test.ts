@@ -190,6 +190,11 @@ describe("gaussianSoftmaxPairMoment", () => {
     expect(Math.abs(above / below - 1)).toBeLessThan(1e-6);
   });
 
+  it("past s² = 400 the peaked limit's leading order follows the quadrature run on to 625 (10 classes, c = 0.5; a decay ∝ 1/s would be 6e-4 off)", () => {
+    const quadrature = gaussianSoftmaxPairMoment(625, 0.5, 10, Infinity);
+    expect(Math.abs(gaussianSoftmaxPairMoment(625, 0.5, 10) / quadrature - 1)).toBeLessThan(1e-4);
+  });
+
   it("s → ∞, two classes: both samples' class 1 wins with the orthant probability 1/4 + asin(c)/(2π) (Sheppard 1899, Phil. Trans. A 192)", () => {
     for (const c of [0.3, 0.9, 0.99]) {
       expect(Math.abs(gaussianSoftmaxPairMoment(1e12, c, 2) / (0.25 + Math.asin(c) / (2 * Math.PI)) - 1)).toBeLessThan(1e-6);
