@@ -51,6 +51,16 @@ describe("activation kernel", () => {
     expect(gradientError(f, z, softmaxBackward(y, rr, 4, 6))).toBeLessThan(1e-6);
   });
 
+  it("ReLU and leaky ReLU pass NaN and infinities on, as IEEE 754-2019 §9.6 maximum(0, x) does, so a run's bad values are not read as zeros", () => {
+    expect(activate("relu", NaN, 0)).toBeNaN();
+    expect(activate("leaky-relu", NaN, 0.1)).toBeNaN();
+    expect(activate("relu", Infinity, 0)).toBe(Infinity);
+    expect(activate("relu", -Infinity, 0)).toBe(0);
+    expect(activate("leaky-relu", -Infinity, 0.1)).toBe(-Infinity);
+    // −0 maps to +0 or −0: both are zero
+    expect(activate("relu", -0, 0) === 0).toBe(true);
+  });
+
   it("softmax without the max subtraction overflows where exp does; with it, it does not", () => {
     // exp(710) overflows binary64 (largest finite ≈ 1.797e308, ln of it ≈ 709.78: IEEE 754-2019 binary64)
     const z = Float64Array.from([710, 0]);

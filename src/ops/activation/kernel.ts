@@ -22,9 +22,10 @@ function sigmoid(z: number): number {
 export function activate(name: ElementwiseActivation, z: number, slope: number): number {
   switch (name) {
     case "relu":
-      return z > 0 ? z : 0;
+      // NaN passes, as IEEE 754-2019 §9.6 maximum(0, NaN) does: a run whose values went bad must not read as zeros
+      return z <= 0 ? 0 : z;
     case "leaky-relu":
-      return z > 0 ? z : slope * z;
+      return z <= 0 ? slope * z : z;
     case "gelu":
       // the exact (erf) form z·Φ(z) (Hendrycks & Gimpel 2016, eq. 1)
       return 0.5 * z * (1 + erf(z * SQRT1_2));
