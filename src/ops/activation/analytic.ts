@@ -10,6 +10,7 @@ import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
 import { activationFunction } from "../../numeric/activations.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
+import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { NO_FACTORS, SOURCES, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
@@ -461,7 +462,9 @@ export const activationRule: AnalyticRule<ActivationStash> = {
 
 /** Softmax probabilities over n entries from logits of variance q: second moment, spread and rms. */
 export function softmaxMoments(q: number, n: number): { second: number; elementLog2Spread: number } {
-  const second = Math.min(Math.exp(q) / (n * n), 1 / n);
+  // E[p²] of n independent N(0, q) logits by the Laplace-transform quadrature, as attention and the loss take it
+  // (Cressie et al. 1981; src/numeric/softmax.ts), not the log-normal min(e^q/n², 1/n)
+  const second = gaussianSoftmaxMoments(q, Math.max(n, 1)).second;
   return { second, elementLog2Spread: Math.sqrt(q) / Math.LN2 };
 }
 
