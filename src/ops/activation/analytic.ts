@@ -11,6 +11,7 @@ import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadratur
 import { activationFunction } from "../../numeric/activations.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
+import { attentionRowSums } from "../attention/analytic.js";
 import { NO_FACTORS, SOURCES, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
@@ -33,6 +34,8 @@ export interface ActivationStash {
   allOff: number;
   /** softmax: E[p²] */
   probabilitySecond?: number;
+  /** softmax: E[p_j²·(δ_j − Σ_k p_k δ_k)²] per unit E[δ²], the Jacobian's share per element */
+  probabilityJacobian?: number;
   /** leaky-relu: the negative slope */
   slope?: number;
 }
@@ -446,8 +449,9 @@ export const activationRule: AnalyticRule<ActivationStash> = {
   backward(ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
     const spec = layer.spec as ActivationLayer;
     if (stash.probabilitySecond !== undefined) {
-      // softmax Jacobian diag(p) − p pᵀ: δ_in,j = p_j(δ_j − Σ p_k δ_k), so E[δ_in²] ≈ E[p²]·E[δ²]
-      const ratio = stash.probabilitySecond;
+      // softmax Jacobian diag(p) − p pᵀ: δ_in,j = p_j(δ_j − Σ p_k δ_k); E[S + S² − 2Σp³]/n for independent δ of one
+      // variance (own algebra, as attention's rows), not E[p²], which leaves out the centring
+      const ratio = stash.probabilityJacobian ?? stash.probabilitySecond;
       return {
         input: { q: ratio * output.q, zeroFraction: output.zeroFraction, shape: "gaussian", logVar: output.logVar },
         factors: ctx.ledger ? [factor(ratio, softmaxBackwardRule(ratio), SOFTMAX_SOURCE)] : NO_FACTORS,
@@ -472,6 +476,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
   const n = featureWidth(layer.input);
   const logitVariance = Math.max(input.q - input.mean * input.mean, 0);
   const { second, elementLog2Spread } = softmaxMoments(logitVariance, n);
+  const jacobian = attentionRowSums(n, false, logitVariance).centredSquares / n;
   const output: Signal = {
     q: second,
     mean: 1 / n,
@@ -497,7 +502,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         detail: ctx.ledger ? softmaxDetail(n) : "",
       },
     ],
-    stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second },
+    stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second, probabilityJacobian: Number.isFinite(jacobian) ? jacobian : second },
   };
 }
 
@@ -517,7 +522,7 @@ function maxPoolRule(name: string, k: number, allOff: number, derivativeSecond: 
 }
 
 function softmaxBackwardRule(ratio: number): Text {
-  return () => `softmax: E[p²] = ${fmt(ratio)}`;
+  return () => `softmax: E[p_j²·(δ_j − Σ p δ)²]/E[δ²] = ${fmt(ratio)}`;
 }
 
 function softmaxForwardRule(n: number, second: number, logitVariance: number): Text {
