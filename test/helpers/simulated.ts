@@ -23,3 +23,18 @@ export function measuredDifferences(yaml: string, name: string, pattern: RegExp,
   const { comparison } = simulate(parsed.spec, { draws, seed: 1, round: false, predict });
   return new Map(comparison!.rows.filter((r) => pattern.test(r.id)).map((r) => [r.id, r.differenceBinades]));
 }
+
+/**
+ * The spec of an invented image classifier: `layers` (YAML list items, one a line, a leading newline dropped) then a
+ * flatten and a 4-way dense head, trained with cross-entropy under {@link WIDE_PLAN}.
+ */
+export function imageClassifier(name: string, input: string, layers: string, batch = 24): string {
+  return `name: ${name}
+description: invented
+input: { ${input} }
+training: { batch: ${batch}, loss: { kind: cross-entropy, classes: 4 } }
+${WIDE_PLAN}layers:
+${layers.replace(/^\n/, "")}  - flatten
+  - { type: dense, name: head, width: 4 }
+`;
+}

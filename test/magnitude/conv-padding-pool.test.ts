@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
+import { imageClassifier, measuredDifferences } from "../helpers/simulated.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { paddingShares, tapCounts } from "../../src/ops/conv2d/analytic.js";
 import { conv2dForward, conv2dGeometry } from "../../src/ops/conv2d/kernel.js";
@@ -14,11 +14,7 @@ import { parseSpec } from "../../src/spec/index.js";
 // the figures in the comments are the differences before these rules.
 
 // an invented kelp-frond camera: padded convolutions with batch norm and an overlapping max pool between them
-const KELP = `name: kelp-camera
-description: invented
-input: { channels: 3, height: 14, width: 14 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+const KELP = imageClassifier("kelp-camera", "channels: 3, height: 14, width: 14", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, bias: false }
   - { type: batch-norm, name: bn1 }
   - { type: relu, name: a1 }
@@ -27,17 +23,11 @@ ${WIDE_PLAN}layers:
   - { type: batch-norm, name: bn2 }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 6 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
 
 // an invented reed-bed survey: an average pool (its output's mean well above its spread) into a padded convolution and
 // a batch norm, with no norm below
-const REEDS = `name: reed-survey
-description: invented
-input: { channels: 3, height: 16, width: 16 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+const REEDS = imageClassifier("reed-survey", "channels: 3, height: 16, width: 16", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, init: he-normal }
   - { type: relu, name: a1 }
   - { type: average-pool, name: p1, size: 4 }
@@ -45,9 +35,7 @@ ${WIDE_PLAN}layers:
   - { type: batch-norm, name: bn2 }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 4 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
 
 describe("zero padding between batch-normed convolutions", () => {
   it("the share of taps inside is what the float64 kernel sums of a ones image through a ones kernel", () => {
@@ -80,16 +68,10 @@ describe("zero padding between batch-normed convolutions", () => {
   it("a padded convolution's weight gradient sums each tap over the pixels it reaches (−0.27 binade before, 3 × 3 images)", () => {
     // an invented seed-tray camera: 3 × 3 thermal tiles, one pixel of zeros around, so a border tap reaches 2 of 3 rows
     // or columns and the taps' mean count of terms is (7/9)² of the rule's batch × pixels
-    const yaml = `name: seed-tray
-description: invented
-input: { channels: 8, height: 3, width: 3 }
-training: { batch: 64, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+    const yaml = imageClassifier("seed-tray", "channels: 8, height: 3, width: 3", `
   - { type: conv2d, name: c1, channels: 16, kernel: 3, padding: 1 }
   - { type: tanh, name: a1 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`, 64);
     const d = measuredDifferences(yaml, "seed-tray", /^c1\/weight-gradient$/);
     expect(d.size).toBe(1);
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.2);

@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
+import { imageClassifier, measuredDifferences } from "../helpers/simulated.js";
 import { residualBranchSeed } from "../../src/ops/residual/analytic.js";
 import type { GraphLayer } from "../../src/graph/types.js";
 
@@ -10,20 +10,14 @@ import type { GraphLayer } from "../../src/graph/types.js";
 // energy along w. The same S is a batch norm's gain gradient below the ReLU (Σ x̂·δ = Σ (y − β)·δ/γ). Each check is
 // against the project's float64 simulation (src/simulate, median of 5 draws); the figures are the differences before.
 
-const conv = (name: string, pool: string): string => `name: ${name}
-description: invented
-input: { channels: 3, height: 17, width: 17 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+const conv = (name: string, pool: string): string => imageClassifier(name, "channels: 3, height: 17, width: 17", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, padding: valid, init: he-normal }
   - { type: relu, name: a1 }
   - { type: max-pool, name: p1, ${pool} }
   - { type: conv2d, name: c2, channels: 20, kernel: 3, padding: valid, init: he-normal }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 5 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
 
 describe("a max pool's sum Σ p·g passed down by Euler's theorem", () => {
   it("the convolution below a ReLU and an overlapping max pool: its weight gradient (1.88 binades above the prediction before)", () => {
@@ -43,11 +37,7 @@ describe("a max pool's sum Σ p·g passed down by Euler's theorem", () => {
   it("a batch norm's gain gradient below a leaky ReLU and a max pool (1.11 binades below before)", () => {
     // an invented heron-nest camera: the gain's Σ x̂·δ is the pool's S, whose terms the pool pairs by its output's
     // shared mean and position correlation (the norm's own count paired x̂ of mean zero)
-    const yaml = `name: heron-nest
-description: invented
-input: { channels: 3, height: 14, width: 14 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+    const yaml = imageClassifier("heron-nest", "channels: 3, height: 14, width: 14", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, bias: false }
   - { type: batch-norm, name: bn1 }
   - { type: leaky-relu, name: a1 }
@@ -56,9 +46,7 @@ ${WIDE_PLAN}layers:
   - { type: batch-norm, name: bn2 }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 7 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
     const d = measuredDifferences(yaml, "heron-nest", /^bn1\/weight-gradient:gain$/);
     expect(d.size).toBe(1);
     // what is left (−0.17): the pool's output variance, taken as the max of Gaussians (see the sweep's s2 case)

@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
+import { imageClassifier, measuredDifferences } from "../helpers/simulated.js";
 
 // An overlapping max pool (size 3, stride 2) routes two neighbouring windows' gradients to one pixel when the maximum
 // of their union lies in their overlap (for independent inputs, with chance overlap/union): that pixel gets g + g', and
@@ -8,20 +8,14 @@ import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
 // input less the one at its output, was 0.67 binade before.
 
 // an invented lichen-edge detector: valid convolutions (no padding, no norm) around an overlapping max pool
-const LICHEN = `name: lichen-edges
-description: invented
-input: { channels: 3, height: 17, width: 17 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+const LICHEN = imageClassifier("lichen-edges", "channels: 3, height: 17, width: 17", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, padding: valid, init: he-normal }
   - { type: relu, name: a1 }
   - { type: max-pool, name: p1, size: 3, stride: 2 }
   - { type: conv2d, name: c2, channels: 20, kernel: 3, padding: valid, init: he-normal }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 5 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
 
 describe("an overlapping max pool's backward", () => {
   it("the gradient's step across the pool (0.67 binade before)", () => {
@@ -36,11 +30,7 @@ describe("an overlapping max pool's backward", () => {
     // an invented heron-nest camera: a size-3 stride-1 max pool (neighbouring windows share 6 of 9 pixels, so their
     // maxima correlate ~0.6 beyond the mean) into a padded convolution, whose weight gradient pairs those pixels with the
     // gradient's own position correlation
-    const yaml = `name: heron-nest
-description: invented
-input: { channels: 3, height: 14, width: 14 }
-training: { batch: 24, loss: { kind: cross-entropy, classes: 4 } }
-${WIDE_PLAN}layers:
+    const yaml = imageClassifier("heron-nest", "channels: 3, height: 14, width: 14", `
   - { type: conv2d, name: c1, channels: 12, kernel: 3, bias: false }
   - { type: batch-norm, name: bn1 }
   - { type: relu, name: a1 }
@@ -49,9 +39,7 @@ ${WIDE_PLAN}layers:
   - { type: batch-norm, name: bn2 }
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 12 }
-  - flatten
-  - { type: dense, name: head, width: 4 }
-`;
+`);
     const d = measuredDifferences(yaml, "heron-nest", /^c2\/weight-gradient$/);
     expect(d.size).toBe(1);
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.5);
