@@ -218,7 +218,7 @@ function overlapSum(layer: GraphLayer, f: (overlap: number) => number): number {
  * Σ over ordered pairs of distinct output windows of the chance that both pick the same input pixel: overlap/union of
  * their pixels (the union's maximum, for independent inputs, lies in the overlap with that chance).
  */
-export function overlapCollisions(layer: GraphLayer): number {
+function overlapCollisions(layer: GraphLayer): number {
   const k = windowElements(layer);
   return overlapSum(layer, (overlap) => overlap / (2 * k - overlap));
 }
