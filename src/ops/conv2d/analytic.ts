@@ -3,7 +3,7 @@
  * with fan-in k²c"). Backward, each input pixel feeds out-channels × (output pixels per input pixel) × k² outputs,
  * which is out-channels × k² at stride 1. Zero padding leaves a border pixel fewer taps inside the image, both ways.
  */
-import { sampleElements } from "../../graph/shape.js";
+import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { Conv2dLayer } from "../../spec/types.js";
 import { crossCorrelationOf, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
@@ -80,12 +80,12 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     out.q = weighted * inside + bias;
     out.shared = sharedWeighted * inside + bias;
     // the channel's mean over batch and pixels weighs tap k by the share of pixels it reaches (own algebra, see paddingShares)
+    const gain = ctx.variance(w) * w.fanIn;
     const channelIn = input.channelShared ?? sharedOf(input);
-    out.channelShared = Math.min(ctx.variance(w) * w.fanIn * channelIn * channelMean + bias, out.shared);
+    out.channelShared = Math.min(gain * channelIn * channelMean + bias, out.shared);
     // two pixels share the input's fluctuation part through the taps inside, and the per-pixel means as the pairs of an
     // average over all P² pixel pairs (the channel's mean²) less its P diagonal ones: (P·channel − per-pixel)/(P − 1)
     const pixels = taps.outRows * taps.outColumns;
-    const gain = ctx.variance(w) * w.fanIn;
     const fluctuation = gain * inside * Math.max(positionCorrelationOf(input) * input.q - sharedOf(input), 0);
     const means = pixels > 1 ? Math.max((pixels * (out.channelShared - bias) - (out.shared - bias)) / (pixels - 1), 0) : out.shared - bias;
     if (out.q > 0) out.positionCorrelation = Math.min((fluctuation + means + bias) / out.q, 1);
@@ -163,7 +163,7 @@ function borderLeak(batch: number, taps: TapCounts, output: Gradient): number {
  * pixels (own algebra: independent weights).
  */
 function leakChannelSum(batch: number, added: number, input: Gradient, layer: GraphLayer): void {
-  const pixelsIn = layer.input.layout === "image" ? layer.input.height * layer.input.width : 1;
+  const pixelsIn = positionCount(layer.input);
   if (batch < 2 || pixelsIn < 2 || !(input.q > 0)) return;
   const ps = positionCorrelationOf(input);
   const ss = sampleCorrelationOf(input);
