@@ -171,7 +171,7 @@ export function linearBackward(
       rule: ctx.ledger ? weightSumRule(terms) : "",
     },
   ];
-  if (maybeWeight(layer, "bias") !== undefined) {
+  if (bias !== undefined) {
     const biasSum = gradientSum(ctx.batch, positions, output);
     weightGradients.push({
       weight: "bias",
