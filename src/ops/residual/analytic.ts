@@ -74,7 +74,7 @@ export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: 
   const a2 = alpha * alpha;
   const gradient: Gradient = { ...output, q: a2 * output.q };
   // Σ y·δ_y of the block's output (a max-pool's sum) is not Σ F·δ_F of the branch's
-  if (gradient.homogeneousSum !== undefined) delete gradient.homogeneousSum;
+  delete gradient.homogeneousSum;
   // δ_F = α·δ_out: what samples share of it scales by α² like q, and the loss's curvature in the branch's output
   // features by α² too, since the branch enters the loss as α·F (∂δ_F/∂F = α²·M) (derived, as Curvature)
   if (output.shared !== undefined) gradient.shared = a2 * output.shared;
@@ -100,7 +100,7 @@ export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: 
   }
   return {
     gradient,
-    factor: factor(alpha * alpha, ledger ? () => `residual branch: multiplier² = ${fmt(alpha * alpha)}` : "", SOURCE),
+    factor: factor(a2, ledger ? () => `residual branch: multiplier² = ${fmt(a2)}` : "", SOURCE),
   };
 }
 
