@@ -32,8 +32,6 @@ export interface ActivationStash {
   derivativeCrossPosition: number;
   /** share of features whose φ' is zero at every term of the batch × positions (a ReLU off for the whole batch) */
   allOff: number;
-  /** softmax: E[p²] */
-  probabilitySecond?: number;
   /** softmax: E[p_j²·(δ_j − Σ_k p_k δ_k)²] per unit E[δ²], the Jacobian's share per element */
   probabilityJacobian?: number;
   /** leaky-relu: the negative slope */
@@ -448,10 +446,10 @@ export const activationRule: AnalyticRule<ActivationStash> = {
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
     const spec = layer.spec as ActivationLayer;
-    if (stash.probabilitySecond !== undefined) {
+    const ratio = stash.probabilityJacobian;
+    if (ratio !== undefined) {
       // softmax Jacobian diag(p) − p pᵀ: δ_in,j = p_j(δ_j − Σ p_k δ_k); E[S + S² − 2Σp³]/n for independent δ of one
       // variance (own algebra, as attention's rows), not E[p²], which leaves out the centring
-      const ratio = stash.probabilityJacobian ?? stash.probabilitySecond;
       return {
         input: { q: ratio * output.q, zeroFraction: output.zeroFraction, shape: "gaussian", logVar: output.logVar },
         factors: ctx.ledger ? [factor(ratio, softmaxBackwardRule(ratio), SOFTMAX_SOURCE)] : NO_FACTORS,
@@ -502,7 +500,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         detail: ctx.ledger ? softmaxDetail(n) : "",
       },
     ],
-    stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilitySecond: second, probabilityJacobian: Number.isFinite(jacobian) ? jacobian : second },
+    stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilityJacobian: Number.isFinite(jacobian) ? jacobian : second },
   };
 }
 
