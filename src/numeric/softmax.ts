@@ -127,12 +127,11 @@ function softmaxMoments(variance: number, C: number): SoftmaxMoments {
   const logC = Math.log(C);
   // the cut for E[p] (K = e^(s²/2), result 1/C), E[p²] (K = e^(s²/2)/e, result ≥ 1/C²) and the log-sum-exp
   // (K = C·e^(s²/2), result ≥ ln C)
-  // K's factor e^(s²/2) bounds E[e^(sZ)]; the Gaussian grid ends at Z_RANGE + h, so e^(s·(Z_RANGE + h)) bounds it too
   const cut = Math.min(
     Math.log(MOMENT_CUT / h) - logC,
     Math.log((MOMENT_CUT * Math.E) / h) - 2 * logC,
     Math.log((MOMENT_CUT * logC) / h) - logC,
-  ) - Math.min(variance / 2, s * Z_RANGE + Math.min(0.3, GAUSS_STEP * s));
+  ) - gridTop(variance, s);
   const { k, spacing, n, weights: weight, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, C, cut);
   const a0 = new Float64Array(latticeLength);
   const a1 = new Float64Array(latticeLength);
@@ -141,6 +140,15 @@ function softmaxMoments(variance: number, C: number): SoftmaxMoments {
   const sums = new Float64Array(3);
   momentSums(steps, low, k, n, weight, a0, a1, a2, C, sums);
   return { mean: (sums[0] as number) * U_STEP, second: (sums[1] as number) * U_STEP, logSumExp: (sums[2] as number) * U_STEP };
+}
+
+/**
+ * ln K, K the factor of the cuts that bounds E[e^(sZ)] on the Gaussian grid, whose nodes end at Z_RANGE + h (h the
+ * grid's step in Z): e^(s²/2), or e^(s·(Z_RANGE + h)) when that is smaller (s above about 19), so that the grid of
+ * ln t starts near −10s rather than −s²/2
+ */
+function gridTop(variance: number, s: number): number {
+  return Math.min(variance / 2, s * Z_RANGE + Math.min(0.3, GAUSS_STEP * s));
 }
 
 /** y = e^(base + j·spacing) on the lattice: 1 − e^(−y) into a0, and y^m·e^(−y) into powers[m − 1] (m = 1, 2, …). */
@@ -602,10 +610,7 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadrat
   // the cut of E[p²] in the module comment (K = e^(s²/2)/e against 1/n²), its K raised by 1 + s² + s⁴ for the
   // logit-weighted transforms (E[z²·e^z] = (s² + s⁴)·e^(s²/2)) and y³, y⁴ (y^m·e^(−y) ≤ y·((m − 1)/e)^(m−1))
   const h = U_STEP / (1 - Math.exp(-U_STEP));
-  // K bounds E[e^(sZ)] on the Gaussian grid, whose nodes end at Z_RANGE + h: by e^(s²/2), or by e^(s·(Z_RANGE + h))
-  // when that is smaller (s above about 19), so that the grid of ln t starts near −10s rather than −s²/2
-  const gridTop = Math.min(variance / 2, s * (Z_RANGE + Math.min(0.3, GAUSS_STEP * s) / s));
-  const cut = Math.log((MOMENT_CUT * Math.E) / (h * 2 * (1 + variance + variance * variance))) - 2 * Math.log(maxKeys) - gridTop;
+  const cut = Math.log((MOMENT_CUT * Math.E) / (h * 2 * (1 + variance + variance * variance))) - 2 * Math.log(maxKeys) - gridTop(variance, s);
   const { k, spacing, n: nz, weights, low, steps, latticeLength, base } = logLattice(U_STEP, Math.min(0.3, GAUSS_STEP * s), s, variance, maxKeys, cut);
   // z = s·x at the Gaussian nodes (x on a grid of step h = spacing/s centred on 0)
   const wz = new Float64Array(nz);
