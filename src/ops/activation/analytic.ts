@@ -1,8 +1,8 @@
 /**
  * Pointwise activations: forward E[φ(z)²] and backward E[φ'(z)²] for z ~ N(0, q) (Poole et al. 2016;
  * Schoenholz et al. 2017), with the exact zeros of rectifiers and the bounds of tanh and sigmoid.
- * Softmax over the feature axis: probabilities are log-normal, p_j ≈ e^(z_j)/(n·e^(q/2)) for n features
- * (a log-normal sum approximation, good when e^q ≪ n), so E[p²] ≈ min(e^q/n², 1/n).
+ * Softmax over the feature axis: E[p²] and the Jacobian's share E[S + S² − 2Σp³]/n of n independent N(0, q) logits
+ * by quadrature (src/numeric/softmax.ts), ≈ e^q/n² while e^q ≪ n and → 1/n as the rows concentrate.
  */
 import { featureWidth, positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
@@ -39,7 +39,7 @@ export interface ActivationStash {
 }
 
 const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017; SCIENCE.md §2.9)";
-const SOFTMAX_SOURCE = "log-normal softmax approximation, E[p²] ≈ min(e^q/n², 1/n) (derived; SCIENCE.md §2.10)";
+const SOFTMAX_SOURCE = "softmax of n independent N(0, q) logits, E[p²] and E[S + S² − 2Σp³] by quadrature (Cressie et al. 1981 Laplace transform; src/numeric/softmax.ts)";
 
 /**
  * φ(0) and φ'(0) for the zero elements of an input (ReLU'(0) = 0 as implementations define it), one function each:
