@@ -195,7 +195,7 @@ function overflowShare(counts: FormatCounts): number {
  */
 export function simulatedFinding(counts: MeasuredTensor["median"]["counts"]): boolean {
   const t = DEFAULT_THRESHOLDS;
-  return counts.flushed >= t.flushedAtRisk || counts.subnormal >= t.subnormalAtRisk || counts.overflowed > 0 || counts.saturated > 0 || counts.nonFinite > 0;
+  return counts.flushed >= t.flushedAtRisk || counts.subnormal >= t.subnormalAtRisk || overflowShare(counts) > 0;
 }
 
 function share(x: number): string {
@@ -297,7 +297,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       row && !Number.isNaN(row.predictedFlushed) ? share(row.predictedFlushed) : "",
       share(m.counts.flushed),
       share(m.counts.subnormal),
-      share(m.counts.overflowed + m.counts.saturated + m.counts.nonFinite),
+      share(overflowShare(m.counts)),
       ...(result.steps > 0 ? [t.after !== undefined ? magnitudeCell(t.after, t.after.rms, "none finite") : ""] : []),
     ];
     return [line, ...accumulateLine];
