@@ -11,7 +11,7 @@
 import { MX_BLOCK, countClasses, roundArrayInPlace, type ClassCounts, type Format, type RoundOptions } from "../formats/index.js";
 
 /** Elements sharing one scale in block scaling (OCP Microscaling v1.0: k = 32). */
-export const BLOCK_SIZE = MX_BLOCK.size;
+const BLOCK_SIZE = MX_BLOCK.size;
 
 /** The per-block scales of one tensor, and which blocks had theirs clamped at E8M0's top. */
 export interface BlockScales {
