@@ -275,4 +275,3 @@ function costWords(o: PlanOutcome): string {
   const saved = o.savedShare > 0 ? `, ${(100 * o.savedShare).toFixed(0)}% less memory than all binary32` : "";
   return `${bytesPerElementText(o.cost.bytesPerParameter)} bytes per parameter, ${bytesPerElementText(o.cost.bytesPerActivation)} per activation element${saved}`;
 }
-
