@@ -3,7 +3,7 @@
  * Pure: a PlanComparison in, a string out.
  */
 import type { PlanComparison } from "../compare.js";
-import { bytesPerElementText } from "../formats/index.js";
+import { bytesPerElementText, MX_BLOCK } from "../formats/index.js";
 import { formatBytes, formatPercent, formatPowerOfTwo } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable } from "./table.js";
@@ -49,7 +49,7 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     "muted",
     wrap(
       "per parameter: weights, master copy, gradients and optimizer states; memory: the spec's parameters plus one step's stored activations " +
-        "(block-scaled 8-bit tensors also hold one scale byte per 32 elements; a per-tensor scale, one number per tensor, is not counted); " +
+        `(block-scaled 8-bit tensors also hold one scale byte per ${MX_BLOCK.size} elements; a per-tensor scale, one number per tensor, is not counted); ` +
         `saved: against ${comparison.baseline.name} (every tensor in binary32, no master copy: ${formatBytes(comparison.baseline.bytes)}).`,
       width,
       "  ",
