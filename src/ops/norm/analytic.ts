@@ -141,11 +141,12 @@ export const normRule: AnalyticRule<NormStash> = {
       if (skip !== undefined && stash.gainSquared > 0) aligned += (terms * terms * skip.covariance) / stash.gainSquared;
     }
     const pairs = gainPairCorrelations(stash, output);
-    let gainQ = correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned;
     const normBias = maybeWeight(layer, "bias");
     // Σ x̂·δ = Σ (y − β)·δ/γ: with β = 0 it is the max-pool's S = Σ p·g passed down by Euler's theorem
     // (Gradient.homogeneousSum; own algebra), whose pairs the pool counted at its output
-    if (output.homogeneousSum !== undefined && stash.gainSquared > 0 && (normBias === undefined || ctx.variance(normBias) === 0)) gainQ = output.homogeneousSum / stash.gainSquared;
+    const homogeneousSum = output.homogeneousSum;
+    const homogeneous = homogeneousSum !== undefined && stash.gainSquared > 0 && (normBias === undefined || ctx.variance(normBias) === 0);
+    const gainQ = homogeneous ? homogeneousSum / stash.gainSquared : correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned;
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
@@ -160,7 +161,7 @@ export const normRule: AnalyticRule<NormStash> = {
         rule: ctx.ledger ? () => `sum of ${terms} products (batch × positions) of normalised input and gradient` : "",
       },
     ];
-    if (maybeWeight(layer, "bias") !== undefined) {
+    if (normBias !== undefined) {
       weightGradients.push({
         weight: "bias",
         q: gradientSum(ctx.batch, positions, output),
