@@ -65,8 +65,9 @@ let cached = 0;
 /**
  * Exact moments of the softmax of `classes` independent N(0, variance) logits (method in the module comment).
  * Returns NaN fields for a negative or non-finite variance or fewer than one class; a variance of 0 gives the
- * uniform softmax exactly. Past `quadratureUpTo` (default 2000; the quadrature's cost grows as s²)
- * the quadrature there is carried on by the peaked limit's leading order. Results are memoised.
+ * uniform softmax exactly. Past `quadratureUpTo` (default 2000; the quadrature's cost grows as s²) the quadrature at
+ * s² = 2000 is carried on by the peaked limit's leading order; the tests pass Infinity to compare the two. Results are
+ * memoised.
  * @example gaussianSoftmaxMoments(0.5, 2).second // E[sigmoid(Z)²] = 0.2933790359 (SCIENCE.md §2.9, q = 1)
  */
 export function gaussianSoftmaxMoments(variance: number, classes: number, quadratureUpTo = ROW_QUADRATURE_VARIANCE): SoftmaxMoments {
