@@ -596,8 +596,8 @@ export function gaussianSoftmaxRow(variance: number, keys: number, quadratureUpT
 /** The rows of minKeys … maxKeys keys of gaussianSoftmaxRows (index n − minKeys). */
 function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadratureUpTo = ROW_QUADRATURE_VARIANCE): SoftmaxRowMoments[] {
   if (!(variance >= 0) || !Number.isFinite(variance) || !(maxKeys >= 1) || !Number.isInteger(maxKeys)) return [];
-  const rows: SoftmaxRowMoments[] = [];
   if (variance > quadratureUpTo) return peakedRows(variance, minKeys, maxKeys);
+  const rows: SoftmaxRowMoments[] = [];
   if (variance < SMALL_VARIANCE) {
     // p ≈ (1 + z − z̄)/n (derived): S = (1 + s²(1 − 1/n))/n, Σ p z ≈ z̄ + Σ z(z − z̄)/n of second moment
     // s²/n + s⁴(1 − 1/n)² and mean s²(1 − 1/n); the Jacobian's share to zeroth order
