@@ -75,5 +75,3 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   for (const file of result.files) for (const issue of file.issues) process.stderr.write(`headroom: ${issueLine(issue)}\n`);
   raiseExitCode(scanExitCode(result));
 }
-
-// one error on one line: file, tensor, byte offset (where one points at something), what is wrong
