@@ -278,7 +278,8 @@ export function pointwiseForward(
   // a ReLU unit is off for the whole step when its pre-activation is ≤ 0 at every term
   const allOff = name === "relu" && qNonzero > 0 ? allBelowZero(meanPairCorrelation(ctx.batch, positions, sampleCorrelationOf(input), positionCorrelation), ctx.batch * positions) : 0;
   if (allOff > 0) output.allZero = allOff;
-  // two features' covariance to first order: Cov(φ(u_i), φ(u_j)) = E[φ']²·Cov(u_i, u_j) (Price's theorem, Gaussian u)
+  // two features' covariance to first order: Cov(φ(u_i), φ(u_j)) = E[φ']²·Cov(u_i, u_j) (Price's theorem, Gaussian u);
+  // the field holds its square over q², hence E[φ']⁴
   if (input.featureCovariance !== undefined && q > 0) output.featureCovariance = (derivativeMean ** 4 * input.featureCovariance * input.q * input.q) / (q * q);
   return {
     output,
