@@ -431,7 +431,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // δo_n·δo_m (own algebra)
     const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
-    const queryCoherent = queryScale / inWidth;
+    // (x̃_j·x̃_j')² has mean tr(Σ̃²) = D·E[x̃²]²·(1 + (D − 1)·E[Cov(x_a, x_b)²]/E[x̃²]²) for input features that covary
+    // (featureCovariance, in units of E[x²]², and E[x̃²] = E[x²]·(1 − ρ)): a narrow layer below fills fewer directions (own algebra)
+    const inputApart = 1 - positionCorrelationOf(stash.input);
+    const pairWidth = inWidth / (1 + ((inWidth - 1) * (stash.input.featureCovariance ?? 0)) / Math.max(inputApart * inputApart, 1e-12));
+    const queryCoherent = queryScale / pairWidth;
     const queryQ = stash.rows.centredSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
     // δk_j = c·Σ_i p_ij·(δo_i·ṽ_j)·q_i: two rows i ≠ i' of one sample pair by E[δo_i·δo_i']·E[q_i·q_i'], the head
     // gradients' and the queries' position correlations (nothing cancels the part all queries share), so besides the
