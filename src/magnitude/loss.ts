@@ -95,6 +95,9 @@ export function lossSeed(
     const c = s2Mean > 0 ? Math.min(Math.max(((output.shared ?? output.mean * output.mean) - output.mean * output.mean) / s2Mean, 0), 1) : 0;
     const sharedQ = Math.max(gaussianSoftmaxPairMoment(s2, c, C) - 1 / (C * C), 0) * k * k * Math.exp(total.logVar / 2);
     const gradient: Gradient = { q: total.q, zeroFraction: 0, shape: "gaussian", logVar: total.logVar, shared: Math.min(sharedQ, total.q) };
+    // the shared part follows the logits' shared part (of the output's spread, Signal.sharedLogVar) through the pair
+    // moment, the logit variance held: the delta method in c (own algebra)
+    if (c > 0 && sharedQ > 0) gradient.sharedLogVar = logVarOf((x) => gaussianSoftmaxPairMoment(s2, Math.min(x, 1), C) - 1 / (C * C), c, output.sharedLogVar ?? output.logVar);
     if (!end && C >= 2) {
       // ∂(p − y)/∂z = diag(p) − p pᵀ; its mean over Gaussian logits has E[p_j − p_j²] = 1/C − E[p²] on the diagonal and,
       // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
@@ -135,8 +138,10 @@ export function lossSeed(
   const residual = residualOf(medianOf(output.q, V));
   // targets independent of the outputs: the samples share only the outputs' shared part
   const gradient: Gradient = { q: seed.q, zeroFraction: 0, shape: "gaussian", logVar: seed.logVar, shared: Math.min((output.shared ?? output.mean * output.mean) * k * k, seed.q) };
-  // the samples share only the outputs' shared part, so that part keeps the outputs' own spread (own algebra)
-  if (output.sharedLogVar !== undefined) gradient.sharedLogVar = output.sharedLogVar;
+  // the samples share only the outputs' shared part, so that part keeps the outputs' own spread, logVar when the output
+  // carries none of its own (Signal.sharedLogVar), not the seed's: a narrow head's batch mean is one Gaussian per unit
+  // (own algebra)
+  gradient.sharedLogVar = output.sharedLogVar ?? output.logVar;
   if (output.correlationSquare !== undefined && positions === 1 && V > 0 && seed.q > 0) {
     // two samples' residual vectors y − t of width m with per-feature correlation ρ: E[(a·b)²]/E[‖a‖²‖b‖²] =
     // (1 + (m + 1)ρ²)/(m + 2ρ²) (Isserlis; exact at m = 1, ρ = 0 and ρ = 1)

@@ -448,6 +448,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
 }
 
+const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
 const CARRIES_CURVATURE: ReadonlySet<string> = new Set([...CARRIES_COVARIANCE, "flatten"]);
@@ -465,7 +466,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   // and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
   if (layer.family !== "dense" && layer.family !== "activation") {
-    if (input.sharedLogVar !== undefined) delete input.sharedLogVar;
+    // the shared part's own spread is carried on through layer and RMS norms, dropout and residual blocks as well
+    if (input.sharedLogVar !== undefined && !KEEPS_SHARED_SPREAD.has(layer.family)) delete input.sharedLogVar;
     if (input.cosineSquare !== undefined) delete input.cosineSquare;
     if (input.coupling !== undefined) delete input.coupling;
   }

@@ -120,7 +120,7 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
  * the part beyond the independent terms' (`independent` of `sum`) is what the samples share, with the shared part's
  * spread; interpolated by that share, exact when either part is the whole (own algebra)
  */
-function sumLogVarOf(delta: Gradient, sum: number, independent: number): number {
+export function sumLogVarOf(delta: Gradient, sum: number, independent: number): number {
   const shared = delta.sharedLogVar;
   if (shared === undefined || !(sum > 0)) return delta.logVar;
   const w = Math.min(Math.max(1 - independent / sum, 0), 1);

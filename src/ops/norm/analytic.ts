@@ -11,6 +11,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
+import { sumLogVarOf } from "../dense/analytic.js";
 import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
@@ -162,14 +163,15 @@ export const normRule: AnalyticRule<NormStash> = {
       },
     ];
     if (normBias !== undefined) {
+      const biasSum = gradientSum(ctx.batch, positions, output);
       weightGradients.push({
         weight: "bias",
-        q: gradientSum(ctx.batch, positions, output),
+        q: biasSum,
         betweenQ: gradientBetween(ctx.batch, positions, output),
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
-        logVar: output.logVar,
+        logVar: layer.family === "batch-norm" ? output.logVar : sumLogVarOf(output, biasSum, terms * output.q),
         rule: ctx.ledger ? () => `sum of ${terms} gradients (batch × positions)` : "",
       });
     }
@@ -188,6 +190,8 @@ export const normRule: AnalyticRule<NormStash> = {
     if (layer.family === "batch-norm") input.shared = 0;
     // two samples divide by their own s: E[1/s]² = E[1/s²]·e^(−V/4) for log-normal s² (as in sampleSpread)
     else if (output.shared !== undefined) input.shared = ratio * spread ** 0.75 * output.shared;
+    // the shared part is the output's, times the draw's statistic, whose spread the whole gradient gains too (own algebra)
+    if (layer.family !== "batch-norm" && output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar + (input.logVar - output.logVar);
     // positions keep what they share, less (batch norm) the part every sample shares, which the batch mean removes
     const sampleShare = layer.family === "batch-norm" ? Math.max(sampleCorrelationOf(output), 0) : 0;
     input.positionCorrelation = sampleShare < 1 ? Math.max(positionCorrelationOf(output) - sampleShare, 0) / (1 - sampleShare) : 0;

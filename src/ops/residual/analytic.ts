@@ -155,6 +155,14 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       shared: (output.shared ?? 0) + (g.shared ?? 0),
     };
     if (q > 0) input.positionCorrelation = (positionCorrelationOf(output) * output.q + positionCorrelationOf(g) * g.q) / q;
+    // both shared parts are images of the one the loss seeded, so they add coherently; the branch's share adds what its
+    // path spread on top (sumLogVar with a wholly shared skip; own algebra)
+    if (output.sharedLogVar !== undefined) {
+      const skipShared = output.shared ?? 0;
+      const branchShared = g.shared ?? 0;
+      input.sharedLogVar =
+        g.sharedLogVar !== undefined && skipShared > 0 && branchShared > 0 ? sumLogVar(skipShared, output.sharedLogVar, branchShared, g.sharedLogVar, 1) : output.sharedLogVar;
+    }
     if (q > 0 && (output.crossCorrelation !== undefined || g.crossCorrelation !== undefined)) {
       input.crossCorrelation = (crossCorrelationOf(output) * output.q + crossCorrelationOf(g) * g.q) / q;
     }
