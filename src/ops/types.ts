@@ -57,6 +57,11 @@ export interface Signal {
    */
   channelShared?: number;
   /**
+   * set by a ReLU or leaky ReLU on an input with channelShared, for a batch norm right after it: each channel's
+   * variance depends on where its mean sits (see ChannelSpread). Absent: every channel's variance taken as their mean
+   */
+  channelSpread?: ChannelSpread;
+  /**
    * E[c²] over pairs of samples, c = x_n·x_m/(‖x_n‖·‖x_m‖) the cosine of two samples' feature vectors (one position
    * per sample): shared/q is its mean, and a narrow random map's finite width spreads it (Fisher 1915), which the batch
    * rms of a following linear map feels. Absent: unknown (set from the input, carried by dense layers and activations)
@@ -80,6 +85,20 @@ export interface Signal {
    * pointwise activations, layer and RMS norms, dropout, and residual blocks whose branch holds only these)
    */
   featureCovariance?: number;
+}
+
+/**
+ * A rectifier's per-channel input: the channel's mean μ_c ~ N(0, between) over channels (a convolution of a
+ * nonzero-mean input), the spread `within` about it, and the negative-side slope (0 for a ReLU).
+ */
+export interface ChannelSpread {
+  slope: number;
+  /** E[μ_c²], averaged over channels */
+  between: number;
+  /** the input's variance about its channel's mean, E[x²] − E[μ_c²] */
+  within: number;
+  /** E[y²] of the rectifier's output it describes: a layer that changes the tensor leaves it to no one */
+  q: number;
 }
 
 /** The backward moments of one gradient tensor. */
@@ -137,6 +156,12 @@ export interface Gradient {
    * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']
    */
   reluGated?: { sample: number; position: number };
+  /**
+   * set by a batch norm's backward on the gradient it passes to the rectifier whose channels it normalises (Signal.
+   * channelSpread), each channel weighed by its gain²/(var_c + ε): E[φ'²], which that rectifier uses in place of its own
+   * (a channel whose mean sits low has both a small variance and few units on)
+   */
+  channelGate?: { derivativeSecond: number };
   /**
    * at the start of the horizon, where the labels are independent of the inputs: the loss's expected Gauss–Newton
    * matrix in this tensor's features (set by the loss, carried down through linear layers and pointwise activations).

@@ -264,6 +264,14 @@ export function pointwiseForward(
   const positionShared = keep * keep * crossPosition.value + (1 - keep * keep) * f0 * f0;
   const output: Signal = { q, mean, shared: Math.min(shared, q), zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
   if (q > 0) output.positionCorrelation = Math.min(positionShared / q, 1);
+  const channelShared = input.channelShared;
+  if (channelShared !== undefined && input.zeroFraction === 0 && input.q > channelShared && (name === "relu" || name === "leaky-relu")) {
+    // the channel's mean² over batch and pixels is E[φ(u)φ(u')] for two of its elements, which share only the channel's
+    // mean, at correlation channelShared/q (Cho & Saul 2009, as for `shared` above)
+    const channelCorrelation = Math.max(channelShared / input.q, 0);
+    output.channelShared = Math.min(crossMoments(name, slope, qNonzero, channelCorrelation, m).value, output.shared as number);
+    output.channelSpread = { slope: name === "relu" ? 0 : slope, between: Math.max(channelShared, 0), within: input.q - channelShared, q };
+  }
   if (bound !== undefined) output.bound = bound;
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
   const cosineSquare = input.correlationSquare;
@@ -309,6 +317,11 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   // E[φ'φ'] for two samples and for two positions, which carry the gradient's shared parts
   let sampleCross = stash.derivativeCross;
   let positionCross = stash.derivativeCrossPosition;
+  if (output.channelGate !== undefined) {
+    // a batch norm above divides each channel by its own variance, and the channels nearly off weigh most
+    derivativeSecond = output.channelGate.derivativeSecond;
+    if (ledger) rule = channelGateRule(name, derivativeSecond);
+  }
   const k = output.windowMaximum;
   if (k !== undefined && (name === "relu" || name === "leaky-relu")) {
     // a max-pool after a rectifier passes its gradient to the window's maximum, which is on the positive side
@@ -373,6 +386,10 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     gradient.shared = Math.min((gradient.shared ?? 0) + own * self.mean * self.mean + skipMean, gradient.q);
   }
   return { gradient, ratio, rule };
+}
+
+function channelGateRule(name: string, derivativeSecond: number): Text {
+  return () => `${name}: E[φ'²] of each channel weighed by the batch norm's 1/(var_c + ε) = ${fmt(derivativeSecond)}`;
 }
 
 function selfGateRule(name: string, derivativeSecond: number, ratio: number): Text {

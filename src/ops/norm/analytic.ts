@@ -12,6 +12,7 @@ import type { NormLayer } from "../../spec/types.js";
 import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
 import { sumLogVarOf } from "../dense/analytic.js";
+import { type ChannelInverse, channelInverse } from "./channels.js";
 import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
@@ -25,9 +26,12 @@ export interface NormStash {
   gainSquared: number;
   /** correlation of the normalised values between two samples and between two positions of one sample */
   normalisedCorrelation: { sample: number; position: number };
+  /** batch norm after a rectifier whose channels' means differ: the channels' mean of 1/(var_c + ε) and its gate */
+  channels?: ChannelInverse;
 }
 
 const SOURCE = "normalisation resets the scale to the gain (layer definitions; SCIENCE.md §2.7)";
+const CHANNEL_SOURCE = "each channel divided by its own variance, the channels' mean of 1/(var_c + ε) at the median draw (own algebra, src/ops/norm/channels.ts)";
 const SPREAD_SOURCE = "each sample divided by its own log-normal statistic, E[1/s²] = e^V/E[s²] (Hanin & Nica 2019; own algebra)";
 
 /** Elements summed into one statistic: features of a position (layer/rms norm), or batch × pixels of a channel (batch norm). */
@@ -100,6 +104,12 @@ export const normRule: AnalyticRule<NormStash> = {
     const normalisedCorrelation =
       normalisedSecond > 0 ? { sample: Math.min(normalisedSampleShared / normalisedSecond, 1), position: Math.min(normalisedPositionShared / normalisedSecond, 1) } : { sample: 0, position: 0 };
     const terms = normTerms(layer, ctx.batch);
+    const stash: NormStash = { input, denominator, normalisedSecond, gainSquared, normalisedCorrelation };
+    // each channel has its own variance after a rectifier whose channels' means differ (see channels.ts)
+    const spread = input.channelSpread;
+    if (layer.family === "batch-norm" && spread !== undefined && spread.q === input.q && spread.within > 0 && layer.input.layout === "image") {
+      stash.channels = channelInverse(spread, layer.input.channels, spec.epsilon);
+    }
     return {
       output,
       factors: ctx.ledger
@@ -123,11 +133,12 @@ export const normRule: AnalyticRule<NormStash> = {
           detail: ctx.ledger ? () => `${layer.family} sums the squares of ${terms} elements per statistic` : "",
         },
       ],
-      stash: { input, denominator, normalisedSecond, gainSquared, normalisedCorrelation },
+      stash,
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: NormStash, output: Gradient): BackwardResult {
-    const ratio = stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
+    const channels = stash.channels;
+    const ratio = channels !== undefined ? stash.gainSquared * channels.inverse : stash.denominator > 0 ? stash.gainSquared / stash.denominator : 0;
     const spread = sampleSpread(layer, stash);
     const positions = positionCount(layer.input);
     const terms = ctx.batch * positions;
@@ -186,6 +197,7 @@ export const normRule: AnalyticRule<NormStash> = {
       // a layer norm's Jacobian ends in the centring P = I − 1·1ᵀ/n, so P·M·P has rows summing to zero (its definition)
       if (layer.family === "layer-norm") input.curvature.centred = true;
     }
+    if (channels !== undefined) input.channelGate = { derivativeSecond: channels.gate };
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
     // two samples divide by their own s: E[1/s]² = E[1/s²]·e^(−V/4) for log-normal s² (as in sampleSpread)
@@ -204,11 +216,13 @@ export const normRule: AnalyticRule<NormStash> = {
       input,
       factors: ctx.ledger
         ? [
-            factor(
-              ratio * spread,
-              () => `${layer.family}: gain²/(var + ε)${spread > 1 ? `·E[(var + ε)/s²] = ${fmt(ratio)}·${fmt(spread)}` : ` = ${fmt(ratio)}`}`,
-              spread > 1 ? SPREAD_SOURCE : SOURCE,
-            ),
+            channels !== undefined
+              ? factor(ratio, () => `${layer.family}: gain²·(mean over ${channelCount(layer)} channels of 1/(var_c + ε)) = ${fmt(ratio)}`, CHANNEL_SOURCE)
+              : factor(
+                  ratio * spread,
+                  () => `${layer.family}: gain²/(var + ε)${spread > 1 ? `·E[(var + ε)/s²] = ${fmt(ratio)}·${fmt(spread)}` : ` = ${fmt(ratio)}`}`,
+                  spread > 1 ? SPREAD_SOURCE : SOURCE,
+                ),
           ]
         : NO_FACTORS,
       inner: [],
@@ -216,6 +230,10 @@ export const normRule: AnalyticRule<NormStash> = {
     };
   },
 };
+
+function channelCount(layer: GraphLayer): number {
+  return layer.input.layout === "image" ? layer.input.channels : 1;
+}
 
 /**
  * E[1/(s² + ε)]·(var + ε) for a layer or RMS norm, whose backward divides each sample by its own statistic s² (the

@@ -1,0 +1,100 @@
+/**
+ * A batch norm after a rectifier divides each channel by that channel's own variance over batch and pixels. When the
+ * rectifier's input has a per-channel mean (a convolution of a nonzero-mean input: μ_c = m·Σw, one Gaussian draw per
+ * channel), the channels' variances differ: a channel whose mean sits low is nearly off, with a tiny variance and a
+ * large 1/variance. The backward pass multiplies each channel's gradient by gain²/(var_c + ε), so the gradient's second
+ * moment holds the channels' mean of 1/(var_c + ε), which a heavy tail puts well above 1/(mean var + ε). The simulation
+ * and the risk figures read one draw's tensor, so the rule gives that mean at the median draw.
+ */
+import { gaussLegendre } from "../../numeric/quadrature.js";
+import { normalCdf, normalPdf, normalQuantile } from "../../numeric/normal.js";
+import type { ChannelSpread } from "../types.js";
+
+
+/** The channels' mean of 1/(var_c + ε), and of E[φ'²|c]/(var_c + ε) per unit of it, at the median draw. */
+export interface ChannelInverse {
+  /** the mean over the channels of 1/(var_c + ε) */
+  inverse: number;
+  /** the mean over the channels of E[φ'²|c]/(var_c + ε), divided by `inverse` */
+  gate: number;
+}
+
+/**
+ * Var[φ(a + Z)] and E[φ'(a + Z)²] for Z ~ N(0, 1) and φ(x) = max(x, 0) − slope·max(−x, 0): with m1 = aΦ(a) + φ(a)
+ * and m2 = (a² + 1)Φ(a) + aφ(a) the ReLU's first two moments (the truncated normal's), Var[relu] = m2 − m1²,
+ * Cov(x, relu(x)) = Φ(a) (Stein's lemma) and φ(x) = slope·x + (1 − slope)·relu(x) (own algebra). Both formulas keep
+ * their relative accuracy to a = −30 (their cancellations cost about t⁴ ulps at t = −a).
+ */
+export function rectifierChannel(a: number, slope: number): { variance: number; derivativeSecond: number } {
+  const cdf = normalCdf(a);
+  const pdf = normalPdf(a);
+  const m1 = a * cdf + pdf;
+  const m2 = (a * a + 1) * cdf + a * pdf;
+  const relu = Math.max(m2 - m1 * m1, 0);
+  const keep = 1 - slope;
+  return {
+    variance: slope * slope + 2 * slope * keep * cdf + keep * keep * relu,
+    derivativeSecond: slope * slope + (1 - slope * slope) * cdf,
+  };
+}
+
+const cache = new Map<string, ChannelInverse>();
+const PANEL = gaussLegendre(12);
+/** u beyond 8.5 standard deviations holds below 1e-16 of the channels */
+const U_END = 8.5;
+
+/**
+ * The mean over C channels of X_c = 1/(var_c + ε) (and of Y_c = E[φ'²|c]·X_c) at the median draw, for channel means
+ * μ_c ~ N(0, between) and a spread `within` about them. X is largest for the channel whose mean is lowest, and its
+ * tail is heavy (X grows like e^(a²/2) at a = μ/√within, against the channels' density e^(−a²/2r²)): the mean of C
+ * draws is set by their largest. So the largest takes the median of the lowest of C means, a* = r·Φ⁻¹(1 − 2^(−1/C))
+ * (the maximum of C uniforms is below 2^(−1/C) with probability 1/2), and the other C − 1 their mean given a > a*
+ * (own algebra: the C − 1 others are independent draws below the largest; within 3% of the median of the mean of C
+ * draws by a Monte Carlo count, 4 ≤ C ≤ 128, r² from 0.2 to 2).
+ */
+export function channelInverse(spread: ChannelSpread, channels: number, epsilon: number): ChannelInverse {
+  const within = spread.within;
+  const slope = spread.slope;
+  if (!(within > 0)) throw new RangeError(`channelInverse: the spread about the channel means must be positive, got ${within}`);
+  const r = Math.sqrt(Math.max(spread.between, 0) / within);
+  const scaledEpsilon = epsilon / within;
+  const c = Math.max(Math.round(channels), 1);
+  const key = `${slope} ${r} ${c} ${scaledEpsilon}`;
+  const hit = cache.get(key);
+  if (hit !== undefined) return { inverse: hit.inverse / within, gate: hit.gate };
+  const at = (a: number): { x: number; y: number } => {
+    const ch = rectifierChannel(a, slope);
+    const x = 1 / (ch.variance + scaledEpsilon);
+    return { x, y: ch.derivativeSecond * x };
+  };
+  // the lowest channel's tail probability at its median, p* = 1 − 2^(−1/C)
+  const low = -Math.expm1(-Math.LN2 / c);
+  const uLow = normalQuantile(low);
+  const largest = at(r * uLow);
+  // ∫ over u > u* of φ(u)·X(r·u): composite 12-point Gauss–Legendre, panels narrow where the integrand is steep (its
+  // log changes by (1 + r²)·|u| + r per unit of u in X's exponential tail)
+  let mass = 0;
+  let sumX = 0;
+  let sumY = 0;
+  let u = uLow;
+  while (u < U_END) {
+    const steep = (1 + r * r) * Math.abs(u) + 3 * r + 1;
+    const width = Math.min(0.5, 2 / steep, U_END - u);
+    for (let i = 0; i < PANEL.nodes.length; i++) {
+      const v = u + 0.5 * width * (1 + (PANEL.nodes[i] as number));
+      const w = 0.5 * width * (PANEL.weights[i] as number) * normalPdf(v);
+      const p = at(r * v);
+      mass += w;
+      sumX += w * p.x;
+      sumY += w * p.y;
+    }
+    u += width;
+  }
+  const rest = (c - 1) / c;
+  const meanX = mass > 0 ? rest * (sumX / mass) + largest.x / c : largest.x;
+  const meanY = mass > 0 ? rest * (sumY / mass) + largest.y / c : largest.y;
+  const result = { inverse: meanX, gate: meanX > 0 ? meanY / meanX : 0 };
+  if (cache.size >= 256) cache.clear();
+  cache.set(key, result);
+  return { inverse: result.inverse / within, gate: result.gate };
+}
