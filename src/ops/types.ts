@@ -159,9 +159,10 @@ export interface Gradient {
   /**
    * set by a batch norm's backward on the gradient it passes to the rectifier whose channels it normalises (Signal.
    * channelSpread), each channel weighed by its gain²/(var_c + ε): E[φ'²], which that rectifier uses in place of its own
-   * (a channel whose mean sits low has both a small variance and few units on)
+   * (a channel whose mean sits low has both a small variance and few units on), and the gated gradient's sum over one
+   * channel's batch × pixels per unit of N·E[(φ'·δ)²], which sets the pairs of two samples below it
    */
-  channelGate?: { derivativeSecond: number };
+  channelGate?: { derivativeSecond: number; sum: number };
   /**
    * at the start of the horizon, where the labels are independent of the inputs: the loss's expected Gauss–Newton
    * matrix in this tensor's features (set by the loss, carried down through linear layers and pointwise activations).

@@ -34,6 +34,19 @@ const LICHEN = imageClassifier("lichen-crust", "channels: 3, height: 10, width: 
   - { type: batch-norm, name: bn3 }
 `, 16);
 
+// an invented fern-frond scanner: three padded convolutions, each followed by ReLU and batch norm (channels of mean 0)
+const FERN = imageClassifier("fern-fronds", "channels: 3, height: 10, width: 10", `
+  - { type: conv2d, name: c1, channels: 16, kernel: 3, padding: 1 }
+  - { type: relu, name: a1 }
+  - { type: batch-norm, name: bn1 }
+  - { type: conv2d, name: c2, channels: 16, kernel: 3, padding: 1 }
+  - { type: relu, name: a2 }
+  - { type: batch-norm, name: bn2 }
+  - { type: conv2d, name: c3, channels: 16, kernel: 3, padding: 1 }
+  - { type: relu, name: a3 }
+  - { type: batch-norm, name: bn3 }
+`, 16);
+
 function steps(yaml: string, name: string): { norm: number; rectifier: number } {
   const d = measuredDifferences(yaml, name, /^(bn2|a2|c2)\/activation-gradient$/);
   expect(d.size).toBe(3);
@@ -77,6 +90,14 @@ describe("batch norm after a rectifier whose channels' means differ", () => {
     const s = steps(MOSS, "moss-tiles");
     expect(Math.abs(s.norm), `norm ${s.norm.toFixed(2)}`).toBeLessThan(0.2);
     expect(Math.abs(s.rectifier), `rectifier ${s.rectifier.toFixed(2)}`).toBeLessThan(0.15);
+  });
+
+  it("the biases of the convolutions below: a ReLU's gate leaves part of the norm's zero sum (−0.38, −0.51, −0.57 before)", () => {
+    // Σ relu'·δ_x over a channel's N terms is Σ_{x>0} δ_x = −Σ_{x≤0} δ_x, whose coefficients on δ pair x̂ with the gate:
+    // about a quarter of N·E[(relu'·δ_x)²] for a channel of mean 0, not the half that independent gates leave
+    const d = measuredDifferences(FERN, "fern-fronds", /^c[123]\/weight-gradient:bias$/);
+    expect(d.size).toBe(3);
+    for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.25);
   });
 
   it("leaky ReLU, 16 channels: the gradient's step across the norm (+0.30 before) and across the leaky ReLU (−0.31)", () => {

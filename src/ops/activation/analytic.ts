@@ -476,6 +476,15 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       };
     }
     const result = pointwiseBackward(spec.activation, stash, output, ctx.ledger);
+    const gate = output.channelGate;
+    const gradient = result.gradient;
+    if (gate !== undefined && ctx.batch > 1 && gradient.q > 0) {
+      // each channel's gated sum over batch × pixels is N·q·(sum + (P − 1)·ρ_position) (see Gradient.channelGate): the
+      // pairs of two samples, at one position or two, carry what the batch norm's zero sum leaves of it (own algebra)
+      const positions = positionCount(layer.input);
+      gradient.shared = (gradient.q * (gate.sum - 1)) / ((ctx.batch - 1) * positions);
+      delete gradient.crossCorrelation;
+    }
     return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: [], weightGradients: [] };
   },
 };

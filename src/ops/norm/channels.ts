@@ -17,6 +17,11 @@ export interface ChannelInverse {
   inverse: number;
   /** the mean over the channels of E[φ'²|c]/(var_c + ε), divided by `inverse` */
   gate: number;
+  /**
+   * E[(Σ φ'·δ)²] of one channel's rectifier-gated gradient summed over its N terms of batch × pixels, per unit of
+   * N·E[(φ'·δ)²] (channels weighed as the two above): what a bias below the rectifier sums
+   */
+  sum: number;
 }
 
 /**
@@ -25,7 +30,7 @@ export interface ChannelInverse {
  * Cov(x, relu(x)) = Φ(a) (Stein's lemma) and φ(x) = slope·x + (1 − slope)·relu(x) (own algebra). Both formulas keep
  * their relative accuracy to a = −30 (their cancellations cost about t⁴ ulps at t = −a).
  */
-export function rectifierChannel(a: number, slope: number): { variance: number; derivativeSecond: number } {
+export function rectifierChannel(a: number, slope: number): { variance: number; derivativeSecond: number; on: number; onMean: number } {
   const cdf = normalCdf(a);
   const pdf = normalPdf(a);
   const m1 = a * cdf + pdf;
@@ -35,7 +40,23 @@ export function rectifierChannel(a: number, slope: number): { variance: number; 
   return {
     variance: slope * slope + 2 * slope * keep * cdf + keep * keep * relu,
     derivativeSecond: slope * slope + (1 - slope * slope) * cdf,
+    on: cdf,
+    // E[(φ − E[φ])·1(x > 0)] = E[relu(x)] − E[φ]·Φ(a), φ being x where x > 0
+    onMean: m1 - (slope * a + keep * m1) * cdf,
   };
+}
+
+/**
+ * A channel's gated gradient summed over its N terms, per unit N·E[δ²] of the gradient above the norm, for δ
+ * independent between terms: the norm's backward is δ_x = (δ − mean δ − x̂·mean(δ·x̂))/√(var + ε), and
+ * Σ φ'·δ_x = (1 − slope)·Σ_{x>0} δ_x (Σ δ_x = 0), whose coefficients c_i = 1(x_i > 0) − p − x̂_i·S/N have
+ * Σ c_i² = N·(p(1 − p) − s²·(2 − var/(var + ε))), p = Φ(a), s = S/N = E[x̂·1(x > 0)] (own algebra).
+ */
+function gatedSum(ch: { variance: number; on: number; onMean: number }, slope: number, epsilon: number): number {
+  const total = ch.variance + epsilon;
+  const s = ch.onMean / Math.sqrt(total);
+  const keep = 1 - slope;
+  return (keep * keep * Math.max(ch.on * (1 - ch.on) - s * s * (2 - ch.variance / total), 0)) / total;
 }
 
 const cache = new Map<string, ChannelInverse>();
@@ -44,7 +65,7 @@ const PANEL = gaussLegendre(12);
 const U_END = 8.5;
 
 /**
- * The mean over C channels of X_c = 1/(var_c + ε) (and of Y_c = E[φ'²|c]·X_c) at the median draw, for channel means
+ * The mean over C channels of X_c = 1/(var_c + ε) (and of Y_c = E[φ'²|c]·X_c, and of the gated sum) at the median draw, for channel means
  * μ_c ~ N(0, between) and a spread `within` about them. X is largest for the channel whose mean is lowest, and its
  * tail is heavy (X grows like e^(a²/2) at a = μ/√within, against the channels' density e^(−a²/2r²)): the mean of C
  * draws is set by their largest. So the largest takes the median of the lowest of C means, a* = r·Φ⁻¹(1 − 2^(−1/C))
@@ -61,11 +82,11 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
   const c = Math.max(Math.round(channels), 1);
   const key = `${slope} ${r} ${c} ${scaledEpsilon}`;
   const hit = cache.get(key);
-  if (hit !== undefined) return { inverse: hit.inverse / within, gate: hit.gate };
-  const at = (a: number): { x: number; y: number } => {
+  if (hit !== undefined) return { inverse: hit.inverse / within, gate: hit.gate, sum: hit.sum };
+  const at = (a: number): { x: number; y: number; b: number } => {
     const ch = rectifierChannel(a, slope);
     const x = 1 / (ch.variance + scaledEpsilon);
-    return { x, y: ch.derivativeSecond * x };
+    return { x, y: ch.derivativeSecond * x, b: gatedSum(ch, slope, scaledEpsilon) };
   };
   // the lowest channel's tail probability at its median, p* = 1 − 2^(−1/C)
   const low = -Math.expm1(-Math.LN2 / c);
@@ -76,6 +97,7 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
   let mass = 0;
   let sumX = 0;
   let sumY = 0;
+  let sumB = 0;
   let u = uLow;
   while (u < U_END) {
     const steep = (1 + r * r) * Math.abs(u) + 3 * r + 1;
@@ -87,14 +109,16 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
       mass += w;
       sumX += w * p.x;
       sumY += w * p.y;
+      sumB += w * p.b;
     }
     u += width;
   }
   const rest = (c - 1) / c;
   const meanX = mass > 0 ? rest * (sumX / mass) + largest.x / c : largest.x;
   const meanY = mass > 0 ? rest * (sumY / mass) + largest.y / c : largest.y;
-  const result = { inverse: meanX, gate: meanX > 0 ? meanY / meanX : 0 };
+  const meanB = mass > 0 ? rest * (sumB / mass) + largest.b / c : largest.b;
+  const result = { inverse: meanX, gate: meanX > 0 ? meanY / meanX : 0, sum: meanY > 0 ? meanB / meanY : 0 };
   if (cache.size >= 256) cache.clear();
   cache.set(key, result);
-  return { inverse: result.inverse / within, gate: result.gate };
+  return { inverse: result.inverse / within, gate: result.gate, sum: result.sum };
 }
