@@ -28,8 +28,9 @@ export const MAX_SPEC_BYTES = 10 * 1024 * 1024;
  */
 const MAX_ALIAS_COUNT = 100;
 
-function wholeFile(file: string, message: string): SpecResult {
-  return { ok: false, issues: [{ file, line: 0, column: 0, path: "", message }] };
+/** An issue of the file as a whole: no position (line 0), no key path. */
+function wholeFileIssue(file: string, message: string): SpecIssue {
+  return { file, line: 0, column: 0, path: "", message };
 }
 
 /** The first line of a yaml library message, without its own position suffix, lowercase. */
@@ -112,11 +113,11 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
     const structural = aliasAndMergeIssues(doc, counter, source);
     if (structural.length > 0) return { ok: false, issues: structural };
     if (error instanceof ReferenceError || error instanceof RangeError) {
-      return wholeFile(source, `refused: the document expands aliases too many times (more than ${MAX_ALIAS_COUNT}); reuse layers with blocks instead`);
+      return { ok: false, issues: [wholeFileIssue(source, `refused: the document expands aliases too many times (more than ${MAX_ALIAS_COUNT}); reuse layers with blocks instead`)] };
     }
     // the YAML library checks merge keys (`<<`) only while building values, e.g. a merge of a scalar
     const reason = error instanceof Error ? error.message : String(error);
-    return wholeFile(source, `yaml: ${reason.charAt(0).toLowerCase()}${reason.slice(1).replace(/\.$/, "")}`);
+    return { ok: false, issues: [wholeFileIssue(source, `yaml: ${reason.charAt(0).toLowerCase()}${reason.slice(1).replace(/\.$/, "")}`)] };
   }
   if (data === null || data === undefined) {
     return { ok: false, issues: [{ file: source, line: 1, column: 1, path: "", message: "the spec is empty: it needs at least input, training and layers" }] };
@@ -251,7 +252,7 @@ export type SpecFileText = { ok: true; text: string } | { ok: false; issue: Spec
 export type SpecFileRead = (path: string) => Promise<string | Uint8Array> | string | Uint8Array;
 
 function fileIssue(file: string, message: string): SpecFileText {
-  return { ok: false, issue: { file, line: 0, column: 0, path: "", message } };
+  return { ok: false, issue: wholeFileIssue(file, message) };
 }
 
 function tooLarge(file: string, bytes: number): SpecFileText {
