@@ -90,11 +90,7 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
     out += `\nGradients judged at the loss scale ${formatValue(applied.value)} (from ${applied.origin === "plan" ? "the plan" : "the command line"}).\n`;
   }
   // recorded rows the check could not use: the user gave them, so a CI comment says so
-  const unused = result.unusedStatistics ?? [];
-  if (unused.length > 0) {
-    out += `\nRecorded statistics not used:\n`;
-    for (const u of unused) out += `- ${escapeMarkdown(u.sentence)}\n`;
-  }
+  out += markdownList("Recorded statistics not used", (result.unusedStatistics ?? []).map((u) => u.sentence));
   // as batch --md lists them: a CI comment is often all a reader sees, and the warnings go to stderr only
   out += markdownList("Warnings (judged as written)", options.warnings ?? []);
   out += `\n_${escapeMarkdown(result.caution)}_\n`;

@@ -59,7 +59,7 @@ describe("check with measured data", () => {
     );
     // Markdown (for CI comments) and the HTML report say so too
     const md = runCli(["check", path, "--md"]).stdout;
-    expect(md).toContain("Recorded statistics not used:\n- fc1 (weight-gradient, line 3) fits 2 tensors");
+    expect(md).toContain("Recorded statistics not used:\n\n- fc1 (weight-gradient, line 3) fits 2 tensors");
     expect(md).toContain("- fc9 (activation, line 4) matches no tensor\n");
     const html = join(files.dir, "unused.html");
     expect(runCli(["report", path, "-o", html]).status).not.toBe(2);
