@@ -17,6 +17,7 @@ import {
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { worseVerdict } from "./verdict-order.js";
 import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
@@ -265,11 +266,7 @@ export function worseOf(start: ProfileRisk, end: ProfileRisk): WorstRisk {
 /** The worst severity among findings ("fits" when there are none). */
 export function worstVerdict(findings: readonly { severity: Verdict }[]): Verdict {
   let verdict: Verdict = "fits";
-  for (let i = 0; i < findings.length; i++) {
-    const severity = (findings[i] as { severity: Verdict }).severity;
-    if (severity === "fails") return "fails";
-    if (severity === "at-risk") verdict = "at-risk";
-  }
+  for (let i = 0; i < findings.length; i++) verdict = worseVerdict(verdict, (findings[i] as { severity: Verdict }).severity);
   return verdict;
 }
 
