@@ -31,21 +31,21 @@ function worse(a: Finding, b: Finding): Finding {
  * @example judge([]) // => { verdict: "fits", reasons: [] }
  */
 export function judge(findings: readonly Finding[]): Judgement {
-  const groups = new Map<FindingKind, { worst: Finding; severity: Finding["severity"]; subjects: Set<string> }>();
+  // a group's worst finding carries its worst severity: `worse` ranks severity first
+  const groups = new Map<FindingKind, { worst: Finding; subjects: Set<string> }>();
   for (let i = 0; i < findings.length; i++) {
     const finding = findings[i] as Finding;
     const group = groups.get(finding.kind);
     if (group === undefined) {
-      groups.set(finding.kind, { worst: finding, severity: finding.severity, subjects: new Set([finding.subject]) });
+      groups.set(finding.kind, { worst: finding, subjects: new Set([finding.subject]) });
     } else {
       group.worst = worse(group.worst, finding);
-      if (finding.severity === "fails") group.severity = "fails";
       group.subjects.add(finding.subject);
     }
   }
   const ordered = [...groups.entries()].sort(
     ([kindA, a], [kindB, b]) =>
-      VERDICT_RANK[b.severity] - VERDICT_RANK[a.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
+      VERDICT_RANK[b.worst.severity] - VERDICT_RANK[a.worst.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
   );
   const reasons = ordered.map(([kind, group]) => {
     const others = group.subjects.size - 1;
