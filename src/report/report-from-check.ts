@@ -10,6 +10,7 @@ import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand 
 import { itemSummary, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
 import { planSettings } from "./plan-settings.js";
+import { VERDICT_RANK } from "../risk/verdict-order.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
 
@@ -59,7 +60,7 @@ function band(result: CheckResult, tensor: TensorCheck): ReportTensorBand {
   const format = risk?.format ?? result.formats.find((f) => (f.holds as readonly string[]).includes(tensor.slot))?.format ?? planned;
   // a format judged at another loss scale than the top-level one carries its own numbers after that scale
   const statistics = risk?.statistics ?? tensor.statistics;
-  const worst = risk ? [...risk.findings].sort((a, b) => (a.severity === b.severity ? 0 : a.severity === "fails" ? -1 : 1))[0] : undefined;
+  const worst = risk ? [...risk.findings].sort((a, b) => VERDICT_RANK[b.severity] - VERDICT_RANK[a.severity])[0] : undefined;
   // an 8-bit conversion with scale factors multiplies the tensor by 2^k first (k per side of the horizon): drawn
   // unscaled, a tensor the format holds well would sit outside its range and read as flushed or overflowing
   const sides = [
