@@ -1,3 +1,4 @@
+import { MX_BLOCK } from "../../formats/model.js";
 import type { RegisterCommand } from "../commands.js";
 import { lazyAction, specCommand } from "./define.js";
 
@@ -14,7 +15,7 @@ export const register: RegisterCommand = (program) => {
     .addHelpText(
       "after",
       "\nmemory: the spec's parameters at the bytes per parameter (weights, master copy, gradients, optimizer states) plus one " +
-        "step's stored activations; block-scaled 8-bit tensors add one scale byte per 32 elements (per-tensor scales are " +
+        `step's stored activations; block-scaled 8-bit tensors add one scale byte per ${MX_BLOCK.size} elements (per-tensor scales are ` +
         "not counted). saved: the share saved against all binary32 (every tensor in binary32, no master copy).",
     )
     .action(lazyAction(() => import("../compare.js").then((m) => m.runCompare)));
