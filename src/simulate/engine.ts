@@ -25,7 +25,7 @@ import type { RoundFunction } from "../numeric/matmul.js";
 import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, roundScaledInPlace, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
-import { measureTensor, medianStats, selectElements } from "./stats.js";
+import { formatCounts, measureTensor, medianStats, selectElements, tensorMagnitudes } from "./stats.js";
 import type { MeasuredTensor, SimulateOptions, SimulationLossScaleOrigin, SimulationResult, StepRecord, TensorStats } from "./types.js";
 
 /** Default memory limit: 4 GiB. */
@@ -91,17 +91,20 @@ class Recorder {
     const format = this.setup.formats[meta.slot];
     const values = selectElements(data, excluded);
     const options = roundOptionsFor(this.setup.roundOptions, format);
-    const stats = measureTensor(values, format, options, storageScales(values, format, this.setup.plan.scaling));
-    if (meta.countsScaledBy !== undefined) {
-      // what storing is judged on: the values times the factor (the loss times the loss scale), their magnitudes kept
-      const stored = values.map((v) => v * meta.countsScaledBy!);
-      stats.counts = measureTensor(stored, format, options, storageScales(stored, format, this.setup.plan.scaling)).counts;
-      // check judges the scaled loss in the accumulate format too, when it is another (src/risk/hazards.ts lossValue)
-      const accumulate = this.setup.accumulateFormat;
-      if (accumulate.name !== format.name) {
-        const held = roundOptionsFor(this.setup.roundOptions, accumulate);
-        stats.accumulateCounts = measureTensor(stored, accumulate, held, storageScales(stored, accumulate, this.setup.plan.scaling)).counts;
-      }
+    const scaling = this.setup.plan.scaling;
+    const factor = meta.countsScaledBy;
+    if (factor === undefined) {
+      this.stats.set(meta.id, { meta, stats: measureTensor(values, format, options, storageScales(values, format, scaling)) });
+      return;
+    }
+    // what storing is judged on: the values times the factor (the loss times the loss scale), their magnitudes kept
+    const stored = values.map((v) => v * factor);
+    const stats: TensorStats = { ...tensorMagnitudes(values), counts: formatCounts(stored, format, options, storageScales(stored, format, scaling)) };
+    // check judges the scaled loss in the accumulate format too, when it is another (src/risk/hazards.ts lossValue)
+    const accumulate = this.setup.accumulateFormat;
+    if (accumulate.name !== format.name) {
+      const held = roundOptionsFor(this.setup.roundOptions, accumulate);
+      stats.accumulateCounts = formatCounts(stored, accumulate, held, storageScales(stored, accumulate, scaling));
     }
     this.stats.set(meta.id, { meta, stats });
   }

@@ -34,6 +34,11 @@ function quantile(sorted: Float64Array, p: number): number {
  * conversion's own clamp clipped).
  */
 export function measureTensor(data: Float64Array, format: Format, options: RoundOptions, scales: StorageScales = 1): TensorStats {
+  return { ...tensorMagnitudes(data), counts: formatCounts(data, format, options, scales) };
+}
+
+/** {@link measureTensor} without the format counts: zeros, non-finite share, rms, max and quantiles of the values. */
+export function tensorMagnitudes(data: Float64Array): Omit<TensorStats, "counts" | "accumulateCounts"> {
   const n = data.length;
   let zeros = 0;
   let nonFinite = 0;
@@ -66,13 +71,26 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
     if (seen++ % stride === 0) sample[k++] = a;
   }
   const sorted = sample.subarray(0, k).sort();
+  const total = n > 0 ? n : 1;
+  return {
+    elements: n,
+    zeroFraction: zeros / total,
+    nonFiniteFraction: nonFinite / total,
+    rms: nonzero > 0 ? Math.sqrt(sumSquares / nonzero) : 0,
+    max,
+    quantiles: [quantile(sorted, 0.01), quantile(sorted, 0.1), quantile(sorted, 0.5), quantile(sorted, 0.9), quantile(sorted, 0.99)],
+  };
+}
+
+/** {@link measureTensor}'s format counts alone: the shares flushed, subnormal, overflowed, saturated (and clipped) when stored. */
+export function formatCounts(data: Float64Array, format: Format, options: RoundOptions, scales: StorageScales = 1): FormatCounts {
   let stored = data;
   if (scales !== 1) {
     stored = Float64Array.from(data);
     applyScales(stored, scales);
   }
   const { counts: c, clipped } = countScaled(format, stored, scales, options);
-  const total = n > 0 ? n : 1;
+  const total = data.length > 0 ? data.length : 1;
   const counts: FormatCounts = {
     format: format.name,
     flushed: c.flushed / total,
@@ -82,15 +100,7 @@ export function measureTensor(data: Float64Array, format: Format, options: Round
     nonFinite: (c.infinities + c.nans) / total,
   };
   if (typeof scales !== "number") counts.clipped = clipped / total;
-  return {
-    elements: n,
-    zeroFraction: zeros / total,
-    nonFiniteFraction: nonFinite / total,
-    rms: nonzero > 0 ? Math.sqrt(sumSquares / nonzero) : 0,
-    max,
-    quantiles: [quantile(sorted, 0.01), quantile(sorted, 0.1), quantile(sorted, 0.5), quantile(sorted, 0.9), quantile(sorted, 0.99)],
-    counts,
-  };
+  return counts;
 }
 
 /**
