@@ -2,8 +2,8 @@
  * Chunk decoders: raw tensor bytes (in a buffer headroom allocated itself, so typed-array views at offset 0 are aligned)
  * to Float32Array or Float64Array values, in place where the element type allows.
  */
+import { decodeArray, FORMATS } from "../formats/index.js";
 import { DTYPE_BYTES, type FloatDtype } from "./types.js";
-import { decodeTable16, decodeTable8 } from "./tables.js";
 
 /** Decodes chunks of one dtype and byte order. The returned array is valid until the next call. */
 export interface ChunkDecoder {
@@ -16,7 +16,8 @@ const HOST_LITTLE_ENDIAN = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1;
 
 /**
  * A decoder for `dtype` stored in the given byte order, with room for `capacity` elements per chunk.
- * Binary16, bfloat16 and the 8-bit formats decode exactly into binary32 (every value of theirs is a binary32 value).
+ * Binary16, bfloat16 and the 8-bit formats decode exactly into binary32 (every value of theirs is a binary32 value),
+ * through the format module's decodeArray.
  */
 export function chunkDecoder(dtype: FloatDtype, littleEndian: boolean, capacity: number): ChunkDecoder {
   if (!HOST_LITTLE_ENDIAN) throw new RangeError("headroom reads tensor files on little-endian hosts only");
@@ -38,42 +39,26 @@ export function chunkDecoder(dtype: FloatDtype, littleEndian: boolean, capacity:
           return new Float32Array(bytes.buffer, bytes.byteOffset, count);
         },
       };
-    case "BF16": {
-      // bfloat16 is the top half of a binary32 pattern: shifting the code left by 16 bits gives the same value
-      const out = new Uint32Array(capacity);
-      const outFloats = new Float32Array(out.buffer);
-      return {
-        dtype,
-        decode(bytes, count) {
-          if (swap) bytes.subarray(0, count * 2).swap16();
-          const codes = new Uint16Array(bytes.buffer, bytes.byteOffset, count);
-          for (let i = 0; i < count; i++) out[i] = codes[i]! << 16;
-          return outFloats.subarray(0, count);
-        },
-      };
-    }
+    case "BF16":
     case "F16": {
-      const table = decodeTable16("binary16");
+      const format = dtype === "BF16" ? FORMATS.bfloat16 : FORMATS.binary16;
       const out = new Float32Array(capacity);
       return {
         dtype,
         decode(bytes, count) {
           if (swap) bytes.subarray(0, count * 2).swap16();
-          const codes = new Uint16Array(bytes.buffer, bytes.byteOffset, count);
-          for (let i = 0; i < count; i++) out[i] = table[codes[i]!]!;
-          return out.subarray(0, count);
+          return decodeArray(format, new Uint16Array(bytes.buffer, bytes.byteOffset, count), out).subarray(0, count);
         },
       };
     }
     case "F8_E4M3":
     case "F8_E5M2": {
-      const table = decodeTable8(dtype === "F8_E4M3" ? "e4m3" : "e5m2");
+      const format = dtype === "F8_E4M3" ? FORMATS.e4m3 : FORMATS.e5m2;
       const out = new Float32Array(capacity);
       return {
         dtype,
         decode(bytes, count) {
-          for (let i = 0; i < count; i++) out[i] = table[bytes[i]!]!;
-          return out.subarray(0, count);
+          return decodeArray(format, new Uint8Array(bytes.buffer, bytes.byteOffset, count), out).subarray(0, count);
         },
       };
     }
