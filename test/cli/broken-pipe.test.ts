@@ -17,15 +17,18 @@ function runIntoClosedPipe(args: readonly string[]): Promise<{ stderr: string; c
 }
 
 describe("output into a pipe the reader closes early", () => {
-  // outputs far larger than a pipe's buffer (64 KiB on Linux), so the reader is gone while headroom still writes:
-  // check --json (4 MB), report (260 KB, written through writeOut), check --all (110 KB)
+  // outputs far larger than a pipe's buffer (65,536 bytes on Linux, pipe(7)), so the reader is gone while headroom still
+  // writes: check --json (4 MB), report (260 KB, written through writeOut), check --all (110 KB); held below, or the
+  // test would pass with no broken pipe at all
   it.each(["check specs/residual-mlp-unscaled.yaml --json", "report specs/deep-relu-he.yaml", "check specs/transformer-encoder.yaml --all"])(
     "headroom %s ends without a stack trace, with the exit code it has when its output is read",
     async (command) => {
       const args = command.split(" ");
       const run = await runIntoClosedPipe(args);
       expect(run.stderr).toBe("");
-      expect(run.code).toBe(runCli(args).status);
+      const read = runCli(args);
+      expect(Buffer.byteLength(read.stdout)).toBeGreaterThan(65536);
+      expect(run.code).toBe(read.status);
     },
   );
 });

@@ -52,12 +52,14 @@ describe("simulate judges the loss value as check does: the loss times the loss 
     expect(loss).toBeLessThan(65504);
     expect(1024 * loss).toBeGreaterThan(65504);
     expect(checkFlagsLossValue(s)).toBe(true);
+    // the loss is one value: its overflow share is all or nothing, here all of it
     expect(row.median.counts.overflowed + row.median.counts.saturated + row.median.counts.nonFinite).toBe(1);
     expect(simulatedFinding(row.median.counts)).toBe(true);
     // listed, not an exit code: the run keeps the loss in binary64, and check calls a loss overflowing the activation
     // format at risk only ("if the loss is kept in the activation format")
     expect(simulationExitCode(result)).toBe(0);
-    // the magnitudes stay those of the loss itself, compared with its prediction; the shares say what they were taken at
+    // the magnitudes stay those of the loss itself, compared with its prediction (the rms of one value is its magnitude,
+    // common practice); the shares say what they were taken at: the plan's loss scale, 1024 (invented for the demo)
     expect(row.median.rms).toBeCloseTo(loss, 12);
     expect(row.countsScaledBy).toBe(1024);
   });
@@ -81,6 +83,7 @@ describe("simulate's report of the scaled loss", () => {
     const s = spec(summed("binary16", "1024"));
     const report = { result: runSimulation(s, { round: false }) };
     const text = renderSimulationText(report);
+    // the plan's scale 1024 = 2^10
     expect(text).toMatch(/loss\/loss: the shares are of the loss times the loss scale 2\^10 \([\d.e+]+\) kept in the activation format/);
     const json = JSON.parse(renderSimulationJson(report)) as { tensors: { id: string; countsScaledBy?: number }[] };
     expect(json.tensors.find((t) => t.id === "loss/loss")?.countsScaledBy).toBe(1024);
@@ -104,6 +107,7 @@ describe("simulate counts the scaled loss in the accumulate format too, as check
     // binary32 holds it (its largest finite is about 3.4e38, IEEE 754-2019 Table 3.5): nothing in the activation format
     expect(row.median.counts.format).toBe("binary32");
     expect(row.median.counts.overflowed).toBe(0);
+    // the one value of the sum overflows: a share of 1
     expect(row.median.accumulateCounts).toMatchObject({ format: "binary16", overflowed: 1 });
     expect(simulatedFinding(row.median.accumulateCounts!)).toBe(true);
     expect(simulationExitCode(result)).toBe(1);
@@ -127,6 +131,7 @@ describe("simulate counts the scaled loss in the accumulate format too, as check
     const finding = check(s).formats.find((f) => f.format === "binary16")?.findings.find((x) => x.kind === "loss-value-overflow");
     expect(finding?.severity).toBe("fails");
     expect(row.median.accumulateCounts).toBeUndefined();
+    // the one value of the sum overflows: a share of 1
     expect(row.median.counts).toMatchObject({ format: "binary16", overflowed: 1 });
     expect(simulationExitCode(result)).toBe(1);
     const { renderSimulationText } = await import("../../src/cli/simulate.js");
@@ -141,9 +146,11 @@ describe("simulate counts the scaled loss in the accumulate format too, as check
     const lines = renderSimulationText(report).split("\n");
     const at = lines.findIndex((l) => l.startsWith("loss/loss "));
     expect(at).toBeGreaterThan(0);
+    // 1024 · ≈147 passes 65504 (IEEE 754-2019 Table 3.5): the sum's one value, 100%, in the overflow column
     expect(lines[at + 1]).toMatch(/^loss\/loss \(accumulate\)\s+binary16\s.*100(\.0)?%$/);
     expect(lines.join("\n")).toMatch(/summed in the accumulate format, binary16, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
     const json = JSON.parse(renderSimulationJson(report)) as { tensors: { id: string; measured: { accumulateCounts?: { overflowed: number } } }[] };
+    // the same one value, a share of 1
     expect(json.tensors.find((t) => t.id === "loss/loss")?.measured.accumulateCounts?.overflowed).toBe(1);
   });
 });
@@ -161,9 +168,15 @@ describe("simulate's page (--html) gives the scaled loss's shares as the text do
     expect(html).toMatch(/summed in the accumulate format, binary16, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
   });
 
-  it("has no loss table when nothing scales the loss nor sums it in another format", async () => {
+  // check judges the loss as a sum in the accumulate format whatever the scale (src/risk/hazards.ts lossValue), so the
+  // page always has the loss's table; with the sum in the activation format itself it holds one line
+  it("at loss scale 1 with the sum in the activation format itself: one line, no (accumulate) line, and the note says so", async () => {
     const { renderSimulationHtml } = await import("../../src/cli/simulate.js");
     const report = { result: runSimulation(spec(summed("binary32", "1")), { round: false }) };
-    expect(renderSimulationHtml(report)).not.toContain("loss/loss (accumulate)");
+    const html = renderSimulationHtml(report);
+    // 64 · ln 10 ≈ 147 (common practice) is a normal binary32 value (IEEE 754-2019 Table 3.5): no share anywhere
+    expect(html).toMatch(/<table class="loss">.*\n<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0<\/td>){3}<\/tr><\/table>/);
+    expect(html).not.toContain("loss/loss (accumulate)");
+    expect(html).toContain("the shares are of the loss kept in the activation format, which is also the accumulate format it is summed in");
   });
 });
