@@ -33,6 +33,7 @@ describe("headroom batch --csv read by an independent RFC 4180 parser (csv-parse
   const jsonl = runCli(["batch", ...files, "--jsonl"]);
 
   test("one record per spec with the header's fields, each field as JSON Lines gives it", () => {
+    // the broken spec is an input error: exit code 2 (DEVELOPERS.md, "Exit codes")
     expect(csv.status).toBe(2);
     expect(csv.stdout.endsWith("\r\n")).toBe(true);
     const records: string[][] = parse(csv.stdout, { record_delimiter: "\r\n", relax_quotes: false, relax_column_count: false, skip_empty_lines: false });
@@ -48,6 +49,7 @@ describe("headroom batch --csv read by an independent RFC 4180 parser (csv-parse
       expect(record[at("error")]).toBe(row.status === "error" ? row.error.message : "");
     });
     expect(rows.map((row) => row.name)).toEqual(['gauge "north", harbour', "line one\nline two", 'carriage\r\nreturn, and "more"', "  padded  ", undefined]);
+    // line 7, column 27: the width's value in the text spec() writes (counted by hand)
     expect(rows[4].error.message).toContain('e broken, "width".yaml:7:27: layers[0].width: expected a number, got the string "four"');
   });
 

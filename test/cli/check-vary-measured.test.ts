@@ -1,7 +1,8 @@
 /**
  * `check --vary` and `batch --vary` on specs with a `measured` section (the built binary, as users run it): every
  * variant is checked with the spec's measured data exactly as a plain `check` of that variant's spec would be.
- * Weight files come from the independent writer in test/measure/writers.ts.
+ * Weight files come from the independent writer in test/measure/writers.ts. Unreadable data is an input error: exit
+ * code 2 (DEVELOPERS.md, "Exit codes").
  */
 import { writeFileSync } from "node:fs";
 import { join } from "node:path";
@@ -82,6 +83,7 @@ describe("check --vary with unreadable measured data", () => {
     expect(varied.status).toBe(2);
     expect(varied.stderr).toBe(plain.stderr);
     // the variants are still checked, as the plain check is (README: "the check still runs with what could be read")
+    // one per value given: 8, 16, 32
     expect(varied.stdout.match(/^variant training\.batch=/gm)).toHaveLength(3);
   });
 
@@ -118,9 +120,11 @@ describe("check --vary with valid measured data", () => {
     // and the measured data is what moved them: without it fc1's weights are He's, 3000/sqrt(2/16) times smaller
     const uncalibrated = numbers(JSON.parse(runCli(["check", "--json", bare]).stdout) as Result);
     const rms = (n: ReturnType<typeof numbers>, id: string) => n.tensors.find((t) => t[0] === id)?.[2] as number;
+    // 3000: the magnitude written into ckpt.safetensors above (invented for the demo)
     expect(rms(same, "fc1/weight")).toBeCloseTo(3000, 6);
     expect(rms(same, "fc1/weight") / rms(uncalibrated, "fc1/weight")).toBeGreaterThan(1000);
     expect(same.tensors).not.toEqual(uncalibrated.tensors);
+    // 0.25: fc2's row in stats.csv above
     expect(rms(same, "fc2/pre-activation")).toBeCloseTo(0.25, 9);
     // the other variant is calibrated too
     const other = entries[1]!.result.tensors.find((t) => t.id === "fc1/weight")!;

@@ -47,6 +47,7 @@ describe("check --vary reads", () => {
 
   it("the spec once, and the measured statistics once when no variant changes the section", async () => {
     const runs = await checkVariants(path, ["training.batch=4,8,16", "layers[0].width=4,2"], {});
+    // 3 batches × 2 widths
     expect(runs.map((r) => r.variant)).toHaveLength(6);
     expect(readsOf(path)).toBe(1);
     expect(readsOf(join(files.dir, "run-a.csv"))).toBe(1);
@@ -59,6 +60,7 @@ describe("check --vary reads", () => {
 
   it("each statistics file once when a variant names another one", async () => {
     const runs = await checkVariants(path, ["training.batch=4,8", "measured.statistics=run-a.csv,run-b.csv"], {});
+    // 2 batches × 2 statistics files
     expect(runs).toHaveLength(4);
     expect(readsOf(path)).toBe(1);
     expect(readsOf(join(files.dir, "run-a.csv"))).toBe(1);

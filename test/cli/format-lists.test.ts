@@ -1,7 +1,8 @@
 /**
  * Every command that takes a list of number formats reads it the same way (src/cli/lists.ts): the same one-line
  * message for a misspelt name, with the nearest known name; an empty item refused; a format named twice (by its name
- * or an alias) counted once. The built binary, as users run it.
+ * or an alias) counted once. The built binary, as users run it. A bad list is an input error: exit code 2
+ * (DEVELOPERS.md, "Exit codes").
  */
 import { readFileSync } from "node:fs";
 import { afterAll, describe, expect, it } from "vitest";

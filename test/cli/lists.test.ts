@@ -15,6 +15,7 @@ function userError(run: () => unknown): string {
     run();
   } catch (error) {
     expect(error).toBeInstanceOf(UserError);
+    // an input error (DEVELOPERS.md, "Exit codes")
     expect((error as UserError).exitCode).toBe(2);
     return (error as UserError).message;
   }
@@ -88,6 +89,7 @@ describe("parseFormatList", () => {
 describe("simulate --shrink, read as a list", () => {
   it("keeps its own items (key=N) and the single factor", () => {
     expect(parseShrink("width=2, batch=4")).toEqual({ width: 2, batch: 4 });
+    // one factor for widths, batch and positions (simulate --help, --shrink)
     expect(parseShrink("3")).toEqual({ width: 3, batch: 3, positions: 3 });
   });
 

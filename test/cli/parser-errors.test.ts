@@ -59,6 +59,7 @@ describe("parser errors (the built binary)", () => {
     }
     const version = runCli(["--version"]);
     expect(version.status).toBe(0);
+    // major.minor.patch, as package.json's version is written (semantic versioning, common practice)
     expect(version.stdout).toMatch(/^\d+\.\d+\.\d+\n$/);
     const bare = runCli([]);
     expect(bare.status).toBe(2);

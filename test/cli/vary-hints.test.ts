@@ -1,6 +1,8 @@
 /**
  * A misspelt --vary key gets a did-you-mean, in `batch` and in `check --vary` alike (the built binary on an example
- * spec). The hints come from the keys at that level of the spec and of its schema (src/spec/issues.ts closestWord).
+ * spec). The hints come from the keys at that level of the spec and of its schema (src/spec/issues.ts closestWord);
+ * each misspelling is one edit from the key (Damerau 1964 edit distance). A bad key is an input error: exit code 2
+ * (DEVELOPERS.md, "Exit codes").
  */
 import { describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
@@ -35,7 +37,8 @@ describe("--vary with a misspelt key", () => {
 });
 
 describe("--vary with a value the spec loads with a warning", () => {
-  // an untrained classifier's cross-entropy is about ln(10) = 2.30 (uniform predictions): a final loss of 5 is not below it
+  // an untrained classifier's cross-entropy is about ln(10) = 2.30 (uniform predictions, common practice): a final loss of
+  // 5 is not below it. 24:17 is where deep-relu-he.yaml writes final-loss's value (read off the file)
   const warning = `${SPEC}:24:17: training.horizon.final-loss: the final loss 5 is not below the starting loss ln(10) ≈ 2.30: gradients are taken not to shrink`;
 
   it("check --vary prints the variant's warning on stderr, named by the variant, as a plain check prints a spec's", () => {

@@ -61,6 +61,7 @@ describe("per-block scale factors in the simulator", () => {
     const values = Float64Array.from([...block(500), ...block(2 ** 137, 2 ** 130), ...block(1)]);
     for (const overflow of ["saturate", "infinity-or-nan"] as const) {
       const counts = measureTensor(values, FORMATS.e4m3, { overflow }, storageScales(values, FORMATS.e4m3, "block")).counts;
+      // the first block's maximum, 500, is clamped to 448 (the first case above): 1 of the 3 · 32 = 96 elements
       expect(counts.clipped).toBe(1 / 96);
       // the clamped block: 2^137/2^127 = 1024 and 2^130/2^127 = 8, so only its maximum leaves the range
       expect(overflow === "saturate" ? counts.saturated : counts.overflowed).toBe(1 / 96);
@@ -143,6 +144,7 @@ describe("a block-scaled 8-bit plan simulated and checked", () => {
         expect(t.median.counts.clipped!, t.id).toBeLessThan(clipShare);
       }
     }
+    // the three dense layers of SPEC (invented for the demo), one weight each (bias of zeros: rms 0, not counted)
     expect(weights).toBe(3);
     expect(answer.formats.filter((f) => f.format !== "binary32").map((f) => [f.format, f.verdict])).toEqual([
       ["e4m3", "fits"],
@@ -161,6 +163,7 @@ describe("a block-scaled 8-bit plan simulated and checked", () => {
     expect(out).toBeLessThan(0.95);
     const judged = check(s).tensors.find((t) => t.id === "input/activation")!;
     const e4m3 = judged.risks.find((r) => r.format === "e4m3")!;
+    // any of 64 · 256 elements, each past the range with probability 0.93 (above): 1 − 0.07^16384, 1 to double precision
     expect(e4m3.worst.overflowRisk).toBeGreaterThan(0.99);
     expect(e4m3.findings.map((f) => [f.kind, f.severity])).toContainEqual([overflow === "saturate" ? "saturation" : "overflow", "fails"]);
   });

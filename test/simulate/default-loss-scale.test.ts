@@ -42,7 +42,8 @@ describe("gradientLossScale: the scale check judges the gradients at, without th
         }
       }
     }
-    // the examples hold binary16 gradients that need a scale: a comparison where every answer is "none" would prove little
+    // the examples hold binary16 gradients that need a scale: a comparison where every answer is "none" would prove little.
+    // Floors invented for the demo: every example full size and shrunk (at least one plan each), and a few recommended
     expect(compared).toBeGreaterThanOrEqual(2 * EXAMPLES.length);
     expect(recommended).toBeGreaterThan(3);
   });
@@ -59,6 +60,7 @@ describe("gradientLossScale: the scale check judges the gradients at, without th
   it("is what simulate runs at by default, with the reason naming check", async () => {
     const spec = await example("wide-classifier.yaml");
     const answer = checkedLossScale(spec)(spec, { plan: spec.precision, shrunk: false });
+    // the reference is check itself (checkedScale above); the reason's words are simulate's own (src/cli/simulate.ts)
     expect(answer).toEqual({ value: checkedScale(spec, spec.precision.name).value, origin: "recommended", reason: "recommended by check" });
   });
 });

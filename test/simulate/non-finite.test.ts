@@ -11,12 +11,14 @@ describe("measureTensor counts the elements left out of the magnitudes", () => {
     const stats = measureTensor(Float64Array.from([3, -4, Infinity, NaN]), FORMATS.binary32, {});
     // rms of 3 and 4: sqrt((9 + 16) / 2) (definition of the root mean square, common practice)
     expect(stats.rms).toBeCloseTo(Math.sqrt(12.5), 12);
+    // 2 of the 4 elements (Infinity and NaN, counted from the input above); none of 1 and 2
     expect(stats.nonFiniteFraction).toBe(0.5);
     expect(measureTensor(Float64Array.from([1, 2]), FORMATS.binary32, {}).nonFiniteFraction).toBe(0);
   });
 
   it("a tensor whose every element is infinite has no finite magnitude and says so", () => {
     const stats = measureTensor(Float64Array.from([Infinity, -Infinity, Infinity]), FORMATS.binary16, {});
+    // all 3 elements infinite, none zero (counted from the input)
     expect(stats.nonFiniteFraction).toBe(1);
     expect(stats.zeroFraction).toBe(0);
   });
@@ -59,9 +61,11 @@ describe("simulate's outputs do not show rms 0 for a tensor whose values all ove
 
   it("measures no finite element in the layer after the overflowed inputs", () => {
     const t = report.result.tensors.find((x) => x.id === id)!;
+    // every sum meets an infinite stored input (the note above LOUD): 100% infinite or NaN
     expect(t.median.nonFiniteFraction).toBe(1);
     const input = report.result.tensors.find((x) => x.id === "input/activation")!;
-    // the inputs themselves are finite in binary64 (they overflow only once stored): their rms is measured
+    // the inputs themselves are finite in binary64 (they overflow only once stored): their rms is measured, near the
+    // spec's input scale 1e6 (invented for the demo) and above binary16's 65504 (IEEE 754-2019 Table 3.5)
     expect(input.median.nonFiniteFraction).toBe(0);
     expect(input.median.rms).toBeGreaterThan(65504);
   });
@@ -72,6 +76,8 @@ describe("simulate's outputs do not show rms 0 for a tensor whose values all ove
     expect(line).toContain("none finite");
     expect(line).not.toMatch(/-inf/);
     expect(text).toMatch(/non-finite/);
+    // zeros 0, non-finite 100%, flushed pred (any), flushed 0, subnormal 0, overflow 100% (a non-finite value counts as
+    // overflowed): the shares measured above, in the table's column order (src/cli/simulate.ts renderSimulationText)
     expect(line).toMatch(/\s0\s+100(\.0)?%\s+\S+\s+0\s+0\s+100(\.0)?%$/);
     expect(text).toContain(`${id}: measured rms: none finite (100.0% infinite or NaN)`);
   });
@@ -83,6 +89,7 @@ describe("simulate's outputs do not show rms 0 for a tensor whose values all ove
     expect(m.max).toBeNull();
     expect(m.quantiles).toBeNull();
     expect(m.nonFiniteFraction).toBe(1);
+    // binary16's largest finite, 65504 (IEEE 754-2019 Table 3.5)
     expect(json.tensors.find((t) => t.id === "input/activation")!.measured.rms).toBeGreaterThan(65504);
   });
 
