@@ -10,6 +10,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { planSettings } from "./plan-settings.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
+import { PLAN_ENTRY_WORDS } from "./summary.js";
 import { renderTable, type Cell } from "./table.js";
 
 /** Options of {@link renderCheckText}. */
@@ -75,14 +76,6 @@ export const VERDICT_WORDS: Readonly<Record<Verdict, string>> = { fits: "fits", 
 export function verdictText(verdict: Verdict, style: Style = PLAIN): string {
   return style.role(verdict === "fits" ? "fits" : verdict === "at-risk" ? "risk" : "fails", VERDICT_WORDS[verdict]);
 }
-
-const ENTRY_WORDS = {
-  activations: "activations",
-  weights: "weights",
-  gradients: "gradients",
-  optimizerStates: "optimizer states",
-  accumulate: "accumulation",
-} as const;
 
 /** "activations binary16, weights binary16, ..." */
 export function describePlan(plan: PrecisionPlan): string {
@@ -363,7 +356,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   out += "\n" + style.role("strong", "Verdict per format") + "\n";
   const formatWidth = Math.max(...result.formats.map((f) => f.format.length));
   for (const format of result.formats) {
-    const holds = format.holds.map((entry) => ENTRY_WORDS[entry]).join(", ");
+    const holds = format.holds.map((entry) => PLAN_ENTRY_WORDS[entry]).join(", ");
     const verdict = verdictText(format.verdict, style) + " ".repeat(Math.max(0, 7 - VERDICT_WORDS[format.verdict].length));
     out +=
       `  ${format.format.padEnd(formatWidth)}  ${verdict}  ` +

@@ -8,7 +8,7 @@ import { lossScaleClause, lossScaleSummaries, namesGradientFormats } from "./los
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
-import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
+import { FINDING_WORDS, findingsWorstFirst, PLAN_ENTRY_WORDS } from "./summary.js";
 import { formatValue } from "./number.js";
 import { planSettings } from "./plan-settings.js";
 
@@ -21,14 +21,6 @@ export interface CheckMarkdownOptions {
   /** the spec's warnings, one `file:line:column: key.path: message` line each (judged as written) */
   warnings?: readonly string[];
 }
-
-const ENTRY_WORDS: Record<string, string> = {
-  activations: "activations",
-  weights: "weights",
-  gradients: "gradients",
-  optimizerStates: "optimizer states",
-  accumulate: "accumulation",
-};
 
 const EMPHASIS = { fits: "fits", "at-risk": "**at risk**", fails: "**fails**" } as const;
 
@@ -44,7 +36,7 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
     result.formats.map((f) => [
       f.format,
       // a format judged with --format stands in for the plan's, as the terminal text says
-      (f.planned ? "" : "in place of the plan's formats: ") + f.holds.map((entry) => ENTRY_WORDS[entry] ?? entry).join(", "),
+      (f.planned ? "" : "in place of the plan's formats: ") + f.holds.map((entry) => PLAN_ENTRY_WORDS[entry]).join(", "),
       { markdown: EMPHASIS[f.verdict] },
       f.reasons.length > 0 ? f.reasons.join("\n") : "",
     ]),

@@ -8,19 +8,11 @@ import type { CheckAnswer } from "../check.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import type { ReportFormatRange, ReportLossScale, ReportModel, ReportTensorBand } from "./report-model.js";
 import { itemSummary, namesGradientFormats, remedyWords } from "./loss-scale.js";
-import { FINDING_WORDS, findingsWorstFirst } from "./summary.js";
+import { FINDING_WORDS, findingsWorstFirst, PLAN_ENTRY_WORDS } from "./summary.js";
 import { planSettings } from "./plan-settings.js";
 import { VERDICT_RANK } from "../risk/verdict-order.js";
 
 const FORWARD_ROLES: ReadonlySet<string> = new Set(["activation", "pre-activation", "weight", "loss"]);
-
-const ENTRY_WORDS: Record<string, string> = {
-  activations: "activations",
-  weights: "weights",
-  gradients: "gradients",
-  optimizerStates: "optimizer states",
-  accumulate: "accumulation",
-};
 
 function log2(value: number): number {
   return value > 0 ? Math.log2(value) : -Infinity;
@@ -144,8 +136,8 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
     ...(settings === "" ? {} : { planSettings: settings }),
     verdict: result.verdict,
     reasons: [...new Set(reasons)],
-    formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => ENTRY_WORDS[h] ?? h), planned: f.planned })),
-    ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => ENTRY_WORDS[h] ?? h))),
+    formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict, roles: f.holds.map((h) => PLAN_ENTRY_WORDS[h]), planned: f.planned })),
+    ranges: shown.map((f) => formatRange(f.format, result.plan.flushSubnormals, f.holds.map((h) => PLAN_ENTRY_WORDS[h]))),
     tensors: result.tensors.map((t) => band(result, t)),
     lossScale: scales[0] as ReportLossScale,
     ...(scales.length > 1 ? { moreLossScales: scales.slice(1) } : {}),

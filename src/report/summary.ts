@@ -6,8 +6,18 @@
 import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
+import type { PlanEntry } from "../risk/judge.js";
 import { VERDICT_RANK } from "../risk/verdict-order.js";
 import { itemSummary, lossScaleSummaries } from "./loss-scale.js";
+
+/** How each entry of a precision plan a format holds is named in the outputs. */
+export const PLAN_ENTRY_WORDS = {
+  activations: "activations",
+  weights: "weights",
+  gradients: "gradients",
+  optimizerStates: "optimizer states",
+  accumulate: "accumulation",
+} as const satisfies Record<PlanEntry, string>;
 
 /** How each kind of finding is named in a row, and what its number measures. */
 export const FINDING_WORDS = {
