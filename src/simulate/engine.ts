@@ -14,7 +14,7 @@
  *
  * All randomness comes from one seeded source per draw (createRandom of src/numeric), never from a global one.
  */
-import { getFormat, roundTo, type Format, type RoundOptions } from "../formats/index.js";
+import { getFormat, MX_BLOCK, roundTo, type Format, type RoundOptions } from "../formats/index.js";
 import { batchShape, buildGraph, sampleElements, type Graph, type GraphLayer, type GraphWeight } from "../graph/index.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import { kernelFor, type InnerTensorInfo, type KernelContext, type KernelForward } from "../ops/kernels.js";
@@ -645,7 +645,7 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
   if (eightBit && setup.plan.scaling === "block") {
     // the block conversion's own clamp (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1, from memory; SCIENCE.md §1.4)
     list.push(
-      "8-bit tensors are stored with one power-of-two scale per block of 32 elements (E8M0, 2^-127 to 2^127); each block's conversion clamps its elements to the largest finite value (counted as clipped), so only a block that would need a scale above 2^127 overflows or saturates as the plan says.",
+      `8-bit tensors are stored with one power-of-two scale per block of ${MX_BLOCK.size} elements (E8M0, 2^${MX_BLOCK.minExponent} to 2^${MX_BLOCK.maxExponent}); each block's conversion clamps its elements to the largest finite value (counted as clipped), so only a block that would need a scale above 2^${MX_BLOCK.maxExponent} overflows or saturates as the plan says.`,
     );
   }
   if (setup.wantedMicroBatches > 1) {
