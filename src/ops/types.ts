@@ -85,6 +85,11 @@ export interface Signal {
    * pointwise activations, layer and RMS norms, dropout, and residual blocks whose branch holds only these)
    */
   featureCovariance?: number;
+  /**
+   * set by a leaky ReLU on a zero-mean Gaussian input: its negative slope and the input's second moment, so that a
+   * max-pool reads max φ(x) = φ(max x) (φ increasing) instead of taking the output as a Gaussian
+   */
+  rectifier?: { slope: number; preQ: number };
 }
 
 /**

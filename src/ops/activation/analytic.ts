@@ -273,6 +273,7 @@ export function pointwiseForward(
     output.channelSpread = { slope: name === "relu" ? 0 : slope, between: Math.max(channelShared, 0), within: input.q - channelShared, q };
   }
   if (bound !== undefined) output.bound = bound;
+  if (name === "leaky-relu" && input.gaussian && input.zeroFraction === 0 && Math.abs(input.mean) < 1e-12) output.rectifier = { slope: slope ?? 0, preQ: input.q };
   if (name === "identity" && input.fresh !== undefined) output.fresh = input.fresh;
   const cosineSquare = input.correlationSquare;
   if (cosineSquare !== undefined && q > 0) {

@@ -21,19 +21,20 @@ export function windowElements(layer: GraphLayer): number {
   return layer.input.layout === "image" ? size * size : size;
 }
 
-const orderCache = new Map<number, { m1: number; m2: number; m2Positive: number }>();
+const orderCache = new Map<number, { m1: number; m2: number; m1Positive: number; m2Positive: number }>();
 
 /**
  * Moments of M = max of k standard normals: E[M], E[M²], and E[max(M, 0)²] (the maximum of k ReLU outputs),
  * from the density k·φ(x)·Φ(x)^(k−1), Simpson's rule on [−10, 10].
  */
-export function maxOfNormals(k: number): { m1: number; m2: number; m2Positive: number } {
+export function maxOfNormals(k: number): { m1: number; m2: number; m1Positive: number; m2Positive: number } {
   const hit = orderCache.get(k);
   if (hit !== undefined) return hit;
   const steps = 4000;
   const h = 20 / steps;
   let m1 = 0;
   let m2 = 0;
+  let m1Positive = 0;
   let m2Positive = 0;
   // Φ by cumulative Simpson would drift; use the erf-free running trapezoid of φ, accurate to ~1e-9 at this step
   let cdf = 0;
@@ -47,9 +48,12 @@ export function maxOfNormals(k: number): { m1: number; m2: number; m2Positive: n
     const weight = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
     m1 += weight * x * density;
     m2 += weight * x * x * density;
-    if (x > 0) m2Positive += weight * x * x * density;
+    if (x > 0) {
+      m1Positive += weight * x * density;
+      m2Positive += weight * x * x * density;
+    }
   }
-  const result = { m1, m2, m2Positive };
+  const result = { m1, m2, m1Positive, m2Positive };
   orderCache.set(k, result);
   return result;
 }
@@ -78,7 +82,14 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
       source = AVERAGE_SOURCE;
     } else {
       const order = maxOfNormals(k);
-      if (input.shape === "half-gaussian" && input.zeroFraction >= 0.5) {
+      const leaky = input.rectifier;
+      if (leaky !== undefined) {
+        // max φ(x) = φ(max x) for an increasing φ: the max of k pre-activations, its positive side kept and its negative
+        // side times the slope a (own algebra on the order statistic above)
+        const a = leaky.slope;
+        q = leaky.preQ * (order.m2Positive + a * a * (order.m2 - order.m2Positive));
+        mean = Math.sqrt(leaky.preQ) * (order.m1Positive + a * (order.m1 - order.m1Positive));
+      } else if (input.shape === "half-gaussian" && input.zeroFraction >= 0.5) {
         // the max of k ReLU outputs is the ReLU of the max of the k pre-activations
         const preVariance = input.q / (1 - input.zeroFraction);
         q = preVariance * order.m2Positive;
