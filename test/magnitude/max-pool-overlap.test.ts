@@ -18,12 +18,13 @@ const LICHEN = imageClassifier("lichen-edges", "channels: 3, height: 17, width: 
 `);
 
 describe("an overlapping max pool's backward", () => {
-  it("the gradient's step across the pool (0.67 binade before)", () => {
+  it("the gradient's step across the pool (0.67 binade before; 0.28 while the gradient was taken to reach one pixel per window)", () => {
     const d = measuredDifferences(LICHEN, "lichen-edges", /^(a1|p1)\/activation-gradient$/);
     expect(d.size).toBe(2);
     const step = d.get("a1/activation-gradient")! - d.get("p1/activation-gradient")!;
-    // what is left: the rule pairs windows by the gradient's mean correlation over all pixel pairs, which neighbours exceed
-    expect(Math.abs(step), `step ${step.toFixed(2)}`).toBeLessThan(0.35);
+    // a pixel picked twice is one nonzero element (max-pool-reach.test.ts); what is left: the rule pairs windows by the
+    // gradient's mean correlation over all pixel pairs, which neighbours exceed
+    expect(Math.abs(step), `step ${step.toFixed(2)}`).toBeLessThan(0.15);
   });
 
   it("forward, overlapping windows' maxima co-vary: the next convolution's weight gradient (measured 1.16 binades above the prediction before)", () => {

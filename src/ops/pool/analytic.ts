@@ -159,7 +159,9 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
         weightGradients: [],
       };
     }
-    const reached = Math.min(share, 1);
+    // the gradient reaches the distinct pixels some window picks: fewer than the windows when they overlap
+    const spec = layer.spec as PoolLayer;
+    const reached = Math.min(spec.stride >= spec.size ? share : pickedPositions(layer) / positionCount(layer.input), 1);
     // routing moves each output gradient to one input, so sums over pixels and batch keep their second moment while
     // the terms multiply by 1/share: the mean pairwise correlations shrink by share (by (P_out − 1)/(P_in − 1) for pixels)
     const pixelsIn = positionCount(layer.input);
@@ -233,6 +235,116 @@ function overlapCollisions(layer: GraphLayer): number {
   const k = windowElements(layer);
   return overlapSum(layer, (overlap) => overlap / (2 * k - overlap));
 }
+
+/** Per input row (or column) of `n`, the offsets i·stride − x of the windows that cover it, grouped: offsets → count. */
+function coverClasses(n: number, windows: number, size: number, stride: number): Map<string, { offsets: number[]; count: number }> {
+  const classes = new Map<string, { offsets: number[]; count: number }>();
+  for (let x = 0; x < n; x++) {
+    const offsets: number[] = [];
+    for (let i = Math.max(Math.ceil((x - size + 1) / stride), 0); i < windows && i * stride <= x; i++) offsets.push(i * stride - x);
+    const key = offsets.join(",");
+    const hit = classes.get(key);
+    if (hit === undefined) classes.set(key, { offsets, count: 1 });
+    else hit.count++;
+  }
+  return classes;
+}
+
+const pickCache = new Map<string, number>();
+/** Beyond this many windows over one pixel the unions of the exact sum run to thousands (24,168 for 6 × 6 at stride 1). */
+const EXACT_WINDOWS = 16;
+
+/**
+ * The chance that some window picks a given pixel, for independent inputs of one continuous distribution: the windows
+ * covering it sit at `rows` × `columns` offsets (sizeY × sizeX each). It is the largest of a union of windows with
+ * chance 1/|union|, so by inclusion–exclusion P = Σ over nonempty sets S of those windows of (−1)^(|S|+1)/|∪S|; the
+ * sets are summed by their union (each a row-wise interval, as every window holds the pixel), a subset recursion.
+ */
+export function pickChance(rows: readonly number[], columns: readonly number[], sizeY: number, sizeX: number): number {
+  if (rows.length === 0 || columns.length === 0) return 0;
+  const key = `${sizeY}x${sizeX}:${rows.join(",")}|${columns.join(",")}`;
+  const hit = pickCache.get(key);
+  if (hit !== undefined) return hit;
+  if (rows.length * columns.length > EXACT_WINDOWS) {
+    // too many unions: given the pixel's value v, the events "W's other pixels all lie below v" fall as the other
+    // pixels rise, so they are positively correlated (Harris's inequality, Harris 1960, from memory) and
+    // P(picked | v) ≤ 1 − Π_W (1 − F(v)^(|W|−1)); integrated over u = F(v) by Simpson's rule, an upper bound
+    const steps = 400;
+    let bound = 0;
+    for (let i = 0; i <= steps; i++) {
+      const u = i / steps;
+      const none = Math.pow(1 - Math.pow(u, sizeY * sizeX - 1), rows.length * columns.length);
+      bound += (((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) / (3 * steps)) * (1 - none));
+    }
+    pickCache.set(key, bound);
+    return bound;
+  }
+  // rows of the union relative to the pixel, from the highest window's top; intervals [lo, hi] of columns, empty lo > hi
+  const top = Math.min(...rows);
+  const height = Math.max(...rows) + sizeY - top;
+  let states = new Map<string, { lo: Int32Array; hi: Int32Array; sign: number }>();
+  states.set("", { lo: new Int32Array(height).fill(1), hi: new Int32Array(height).fill(0), sign: 1 });
+  for (const oy of rows) {
+    for (const ox of columns) {
+      const next = new Map(states);
+      for (const state of states.values()) {
+        const lo = state.lo.slice();
+        const hi = state.hi.slice();
+        for (let r = oy - top; r < oy - top + sizeY; r++) {
+          const empty = lo[r]! > hi[r]!;
+          lo[r] = empty ? ox : Math.min(lo[r]!, ox);
+          hi[r] = empty ? ox + sizeX - 1 : Math.max(hi[r]!, ox + sizeX - 1);
+        }
+        const id = `${lo.join(",")}/${hi.join(",")}`;
+        const entry = next.get(id);
+        // a set with W added flips the sign (−1)^|S|
+        if (entry === undefined) next.set(id, { lo, hi, sign: -state.sign });
+        else next.set(id, { lo, hi, sign: entry.sign - state.sign });
+      }
+      // a union whose sets cancel adds nothing now or later (what a window adds depends only on the union)
+      for (const [id, state] of next) if (state.sign === 0) next.delete(id);
+      states = next;
+    }
+  }
+  let chance = 0;
+  for (const [id, state] of states) {
+    if (id === "" || state.sign === 0) continue;
+    let area = 0;
+    for (let r = 0; r < height; r++) if (state.lo[r]! <= state.hi[r]!) area += state.hi[r]! - state.lo[r]! + 1;
+    chance -= state.sign / area;
+  }
+  pickCache.set(key, chance);
+  return chance;
+}
+
+/**
+ * The expected number of distinct input pixels (positions) of one plane that some window picks as its maximum, for
+ * independent inputs: the windows' count less their shared picks, Σ over pixels of pickChance (own algebra).
+ */
+export function pickedPositions(layer: GraphLayer): number {
+  const spec = layer.spec as PoolLayer;
+  const image = layer.input.layout === "image" && layer.output.layout === "image";
+  const rowsIn = image ? (layer.input as { height: number }).height : 1;
+  const rowsOut = image ? (layer.output as { height: number }).height : 1;
+  const columnsIn = image ? (layer.input as { width: number }).width : positionCount(layer.input);
+  const columnsOut = image ? (layer.output as { width: number }).width : positionCount(layer.output);
+  if (spec.stride >= spec.size) return rowsOut * columnsOut;
+  const sizeY = image ? spec.size : 1;
+  const strideY = image ? spec.stride : 1;
+  const key = `${rowsIn}:${rowsOut}:${columnsIn}:${columnsOut}:${sizeY}:${strideY}:${spec.size}:${spec.stride}`;
+  const hit = pickedCache.get(key);
+  if (hit !== undefined) return hit;
+  let picked = 0;
+  for (const row of coverClasses(rowsIn, rowsOut, sizeY, strideY).values()) {
+    for (const column of coverClasses(columnsIn, columnsOut, spec.size, spec.stride).values()) {
+      picked += row.count * column.count * pickChance(row.offsets, column.offsets, sizeY, spec.size);
+    }
+  }
+  pickedCache.set(key, picked);
+  return picked;
+}
+
+const pickedCache = new Map<string, number>();
 
 const sharedCache = new Map<string, { mean: number; cross: number }>();
 
