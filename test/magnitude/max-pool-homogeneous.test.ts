@@ -47,9 +47,11 @@ describe("a max pool's sum Σ p·g passed down by Euler's theorem", () => {
   - { type: relu, name: a2 }
   - { type: average-pool, name: p2, size: 7 }
 `);
-    const d = measuredDifferences(yaml, "heron-nest", /^bn1\/weight-gradient:gain$/);
+    // 21 draws: the gain's own rms moves 0.44 log2 from draw to draw (measured over 41), so a median of 5 moves ~0.25
+    const d = measuredDifferences(yaml, "heron-nest", /^bn1\/weight-gradient:gain$/, 21);
     expect(d.size).toBe(1);
-    // what is left (−0.27; −0.17 before the pool saw φ, which hid part of it): S pairs terms as E[p p′]·E[g g′]
+    // what is left (−0.13; +0.04 before the pool saw φ and the ReLU's gate under the pool stopped adding draw-to-draw
+    // spread, which lowered the predicted median): S pairs terms as E[p p′]·E[g g′]
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.3);
   });
 });

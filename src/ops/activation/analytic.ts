@@ -310,8 +310,7 @@ export function pointwiseForward(
 
 /** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
 export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient, ledger: boolean): { gradient: Gradient; ratio: number; rule: Text } {
-  let logVar = output.logVar;
-  if (output.fresh !== undefined) logVar = Math.max(logVar + (stash.kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
+  let kappaBackward = stash.kappaBackward;
   let derivativeSecond = stash.derivativeSecond;
   let derivativeZeroFraction = stash.derivativeZeroFraction;
   let rule: Text = ledger ? backwardRule(name, stash.derivativeSecond) : "";
@@ -332,11 +331,15 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     const a = name === "relu" ? 0 : (stash.slope ?? 0);
     derivativeSecond = 1 - allOff + a * a * allOff;
     derivativeZeroFraction = name === "relu" ? allOff : 0;
+    // the gate is this nearly constant φ', so its κ = 3·E[φ'⁴]/E[φ'²]² − 1 (as activationKappa) is near a linear map's 2
+    kappaBackward = derivativeSecond > 0 ? (3 * (1 - allOff + a ** 4 * allOff)) / (derivativeSecond * derivativeSecond) - 1 : 2;
     if (ledger) rule = maxPoolRule(name, k, allOff, derivativeSecond);
     // the arg-max gates of two terms are nearly always on, so nearly independent
     sampleCross = derivativeSecond * derivativeSecond;
     positionCross = sampleCross;
   }
+  let logVar = output.logVar;
+  if (output.fresh !== undefined) logVar = Math.max(logVar + (kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
