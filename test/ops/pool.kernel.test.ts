@@ -53,6 +53,38 @@ describe("max-pool kernel", () => {
   });
 });
 
+describe("max-pool kernel with NaN inputs", () => {
+  // a window holding a NaN gives NaN, as IEEE 754-2019 §9.6 maximum(x, NaN) is NaN (and as the ReLU kernel passes it):
+  // a run whose values went bad must not read as finite after the pool
+  it.each([0, 4, 8])("a NaN anywhere in a 3 × 3 window (element %i) makes its output NaN", (at) => {
+    const x = Float64Array.from({ length: 9 }, (_, i) => i + 1);
+    x[at] = NaN;
+    const { y, argmax } = maxPoolForward(x, poolGeometry(1, 3, 3, 3, 3));
+    expect(y[0]).toBeNaN();
+    expect(argmax[0]).toBe(at);
+  });
+
+  it("overlapping windows that share the NaN both give NaN; the others keep their maxima; the gradient goes to the NaN", () => {
+    // 1 plane, 3 × 5, size 3, stride 1: windows at columns 0, 1, 2; the NaN at column 1 of row 1 lies in the first two
+    const x = Float64Array.from([1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15]);
+    x[6] = NaN;
+    const g = poolGeometry(1, 3, 5, 3, 1);
+    const { y, argmax } = maxPoolForward(x, g);
+    expect(y[0]).toBeNaN();
+    expect(y[1]).toBeNaN();
+    expect(y[2]).toBe(15);
+    const dx = maxPoolBackward(Float64Array.from([1, 2, 4]), argmax, x.length);
+    expect(dx[6]).toBe(3);
+    expect(dx[14]).toBe(4);
+  });
+
+  it("infinities are values, not NaN: +∞ wins its window, −∞ loses", () => {
+    const x = Float64Array.from([1, Infinity, -Infinity, 2]);
+    expect([...maxPoolForward(x, poolGeometry(1, 1, 4, 1, 1)).y]).toEqual([1, Infinity, -Infinity, 2]);
+    expect([...maxPoolForward(x, positionPoolGeometry(1, 4, 1, 2, 2)).y]).toEqual([Infinity, 2]);
+  });
+});
+
 describe("pooling over positions of feature rows", () => {
   it("pools each feature over windows of positions", () => {
     // 1 sample, 4 positions × 2 features: [[1, 10], [2, 20], [3, 30], [4, 40]]
