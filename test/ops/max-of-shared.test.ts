@@ -29,6 +29,9 @@ describe("maxima of two overlapping windows", () => {
   test("windows sharing every element are one window: E[M_A·M_B] = E[M²] (definition)", () => {
     expect(maxOfShared(9, 9, false).cross).toBeCloseTo(maxOfNormals(9).m2, 9);
     expect(maxOfShared(9, 9, false).mean).toBeCloseTo(maxOfNormals(9).m1, 9);
+    // and the rectified maximum: E[max(M, 0)] and E[max(M, 0)²]
+    expect(maxOfShared(9, 9, true).mean).toBeCloseTo(maxOfNormals(9).m1Positive, 9);
+    expect(maxOfShared(9, 9, true).cross).toBeCloseTo(maxOfNormals(9).m2Positive, 9);
   });
 
   test("3 × 3 windows at stride 2 (3 shared) and ReLU'd 2 × 2 windows at stride 1 (2 shared) against 200,000 sampled pairs", () => {

@@ -21,36 +21,62 @@ export function windowElements(layer: GraphLayer): number {
   return layer.input.layout === "image" ? size * size : size;
 }
 
+/**
+ * The grid both quadratures below share: x on [−10, 10] in 4,000 steps, φ(x), Φ(x) and Simpson's weights. Φ by cumulative
+ * Simpson would drift; the running trapezoid of φ (capped at 1) is accurate to ~1e-9 at this step.
+ */
+interface NormalGrid {
+  steps: number;
+  h: number;
+  xs: Float64Array;
+  pdf: Float64Array;
+  cdf: Float64Array;
+  weight: Float64Array;
+}
+
+let normalGridCache: NormalGrid | undefined;
+
+function normalGrid(): NormalGrid {
+  if (normalGridCache !== undefined) return normalGridCache;
+  const steps = 4000;
+  const h = 20 / steps;
+  const xs = new Float64Array(steps + 1);
+  const pdf = new Float64Array(steps + 1);
+  const cdf = new Float64Array(steps + 1);
+  const weight = new Float64Array(steps + 1);
+  for (let i = 0; i <= steps; i++) {
+    xs[i] = -10 + i * h;
+    pdf[i] = Math.exp(-0.5 * xs[i]! * xs[i]!) / Math.sqrt(2 * Math.PI);
+    if (i > 0) cdf[i] = Math.min(cdf[i - 1]! + 0.5 * h * (pdf[i]! + pdf[i - 1]!), 1);
+    weight[i] = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
+  }
+  normalGridCache = { steps, h, xs, pdf, cdf, weight };
+  return normalGridCache;
+}
+
 const orderCache = new Map<number, { m1: number; m2: number; m1Positive: number; m2Positive: number }>();
 
 /**
- * Moments of M = max of k standard normals: E[M], E[M²], and E[max(M, 0)²] (the maximum of k ReLU outputs),
- * from the density k·φ(x)·Φ(x)^(k−1), Simpson's rule on [−10, 10].
+ * Moments of M = max of k standard normals: E[M], E[M²], and E[max(M, 0)] and E[max(M, 0)²] (the maximum of k ReLU
+ * outputs), from the density k·φ(x)·Φ(x)^(k−1), Simpson's rule on the shared grid. maxOfShared(k, k) is the same
+ * integral, but its products run in another order: 67 of these 256 moments for k ≤ 64 differ in the last bits (≤ 1.8e-15).
  */
 export function maxOfNormals(k: number): { m1: number; m2: number; m1Positive: number; m2Positive: number } {
   const hit = orderCache.get(k);
   if (hit !== undefined) return hit;
-  const steps = 4000;
-  const h = 20 / steps;
+  const { steps, xs, pdf, cdf, weight } = normalGrid();
   let m1 = 0;
   let m2 = 0;
   let m1Positive = 0;
   let m2Positive = 0;
-  // Φ by cumulative Simpson would drift; use the erf-free running trapezoid of φ, accurate to ~1e-9 at this step
-  let cdf = 0;
-  let prevPdf = 0;
   for (let i = 0; i <= steps; i++) {
-    const x = -10 + i * h;
-    const pdf = Math.exp(-0.5 * x * x) / Math.sqrt(2 * Math.PI);
-    if (i > 0) cdf += 0.5 * h * (pdf + prevPdf);
-    prevPdf = pdf;
-    const density = k * pdf * Math.pow(Math.min(cdf, 1), k - 1);
-    const weight = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
-    m1 += weight * x * density;
-    m2 += weight * x * x * density;
+    const x = xs[i]!;
+    const density = k * pdf[i]! * Math.pow(cdf[i]!, k - 1);
+    m1 += weight[i]! * x * density;
+    m2 += weight[i]! * x * x * density;
     if (x > 0) {
-      m1Positive += weight * x * density;
-      m2Positive += weight * x * x * density;
+      m1Positive += weight[i]! * x * density;
+      m2Positive += weight[i]! * x * x * density;
     }
   }
   const result = { m1, m2, m1Positive, m2Positive };
@@ -352,23 +378,14 @@ const sharedCache = new Map<string, { mean: number; cross: number }>();
  * For two windows of k independent standard normals sharing `shared` of them: E[M] and E[M_A·M_B] of their maxima (or
  * of the maxima's ReLU, `rectified`). With U the shared part's maximum and X, Y the others', M_A = max(U, X):
  * E[M_A·M_B] = ∫ f_U(u)·E[max(u, X)]² du, E[max(u, X)] = u·F_X(u) + ∫_u^∞ x dF_X(x) (order statistics; Simpson's rule
- * on [−10, 10] as maxOfNormals).
+ * on the grid maxOfNormals uses, normalGrid).
  */
 export function maxOfShared(k: number, shared: number, rectified: boolean): { mean: number; cross: number } {
   const key = `${k}:${shared}:${rectified}`;
   const hit = sharedCache.get(key);
   if (hit !== undefined) return hit;
-  const steps = 4000;
-  const h = 20 / steps;
+  const { steps, h, xs, pdf, cdf, weight: simpson } = normalGrid();
   const others = k - shared;
-  const xs = new Float64Array(steps + 1);
-  const pdf = new Float64Array(steps + 1);
-  const cdf = new Float64Array(steps + 1);
-  for (let i = 0; i <= steps; i++) {
-    xs[i] = -10 + i * h;
-    pdf[i] = Math.exp(-0.5 * xs[i]! * xs[i]!) / Math.sqrt(2 * Math.PI);
-    if (i > 0) cdf[i] = Math.min(cdf[i - 1]! + 0.5 * h * (pdf[i]! + pdf[i - 1]!), 1);
-  }
   // tail[i] = ∫_{x_i}^∞ x dF_X(x), F_X = Φ^others, by the trapezoid from the top
   const tail = new Float64Array(steps + 1);
   const density = (i: number): number => (others > 0 ? others * pdf[i]! * Math.pow(cdf[i]!, others - 1) : 0);
@@ -380,7 +397,7 @@ export function maxOfShared(k: number, shared: number, rectified: boolean): { me
     const j = rectified && i < zero ? zero : i;
     const g = xs[j]! * Math.pow(cdf[j]!, others) + tail[j]!;
     const fU = shared * pdf[i]! * Math.pow(cdf[i]!, shared - 1);
-    const weight = ((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3;
+    const weight = simpson[i]!;
     mean += weight * fU * g;
     cross += weight * fU * g * g;
   }
