@@ -126,7 +126,12 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
         q = input.mean * input.mean + 2 * input.mean * sigma * order.m1 + variance * order.m2;
         mean = input.mean + sigma * order.m1;
       }
-      rule = input.shape === "half-gaussian" && input.zeroFraction >= 0.5 ? `max of ${k} ReLU outputs: E[M²]/E[x²]` : `max of ${k} Gaussians: E[M²]/E[x²]`;
+      rule =
+        leaky !== undefined
+          ? `max of ${k} leaky-ReLU outputs: E[φ(M)²]/E[x²]`
+          : input.shape === "half-gaussian" && input.zeroFraction >= 0.5
+            ? `max of ${k} ReLU outputs: E[M²]/E[x²]`
+            : `max of ${k} Gaussians: E[M²]/E[x²]`;
       source = MAX_SOURCE;
     }
     const output: Signal = {
@@ -206,7 +211,8 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     // independent inputs): that pixel gets g + g', adding 2·E[g·g'] per such pair to the summed squares; sums over a
     // sample's pixels are unchanged, so the pair correlations shrink to keep them (own algebra: arg-max routing)
     const collisions = overlapCollisions(layer);
-    const growth = pixelsOut > 0 ? 1 + (collisions * positionCorrelationOf(output)) / pixelsOut : 1;
+    const raw = pixelsOut > 0 ? 1 + (collisions * positionCorrelationOf(output)) / pixelsOut : 1;
+    const growth = raw > 1 ? raw : 1;
     if (growth > 1) {
       input.q *= growth;
       if (pixelsIn > 1) input.positionCorrelation = ((1 + (pixelsIn - 1) * positionCorrelation) / growth - 1) / (pixelsIn - 1);
@@ -219,7 +225,9 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     if (stash !== null) input.homogeneousSum = gradientSum(ctx.batch, pixelsOut, output, stash.output);
     return {
       input,
-      factors: ctx.ledger ? [factor(share, () => `max of ${k}: the gradient goes to the arg-max only`, MAX_SOURCE)] : NO_FACTORS,
+      factors: ctx.ledger
+        ? [factor(share * growth, () => (growth > 1 ? `max of ${k}: the gradient goes to the arg-max only, windows picking one pixel add there (×${fmt(growth)})` : `max of ${k}: the gradient goes to the arg-max only`), MAX_SOURCE)]
+        : NO_FACTORS,
       inner: [],
       weightGradients: [],
     };
