@@ -146,11 +146,13 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     if (layer.family === "max-pool" && q > 0) {
       // overlapping windows share inputs, so their maxima co-vary beyond the mean: the pairs of output pixels average
       // mean² plus each overlapping pair's covariance (own algebra; the covariance by quadrature, maxOfShared)
-      const rectified = input.shape === "half-gaussian" && input.zeroFraction >= 0.5;
-      const scale = rectified ? input.q / (1 - input.zeroFraction) : variance;
+      // a leaky ReLU's windows: φ of the pre-activations' maxima, φ(m) = max(m, 0) + a·min(m, 0) (as the order statistic)
+      const leaky = input.rectifier;
+      const rectified = leaky !== undefined || (input.shape === "half-gaussian" && input.zeroFraction >= 0.5);
+      const scale = leaky !== undefined ? leaky.preQ : rectified ? input.q / (1 - input.zeroFraction) : variance;
       const pixels = positionCount(layer.output);
       const covariances = overlapSum(layer, (overlap) => {
-        const m = maxOfShared(k, overlap, rectified);
+        const m = maxOfShared(k, overlap, rectified, leaky?.slope ?? 0);
         return m.cross - m.mean * m.mean;
       });
       if (pixels > 1 && covariances > 0) output.positionCorrelation = Math.min((mean * mean + (scale * covariances) / (pixels * (pixels - 1))) / q, 1);
@@ -384,12 +386,13 @@ const sharedCache = new Map<string, { mean: number; cross: number }>();
 
 /**
  * For two windows of k independent standard normals sharing `shared` of them: E[M] and E[M_A·M_B] of their maxima (or
- * of the maxima's ReLU, `rectified`). With U the shared part's maximum and X, Y the others', M_A = max(U, X):
+ * of the maxima's ReLU, `rectified`, or leaky ReLU of negative `slope` a). With U the shared part's maximum and X, Y the
+ * others', M_A = max(U, X), and X, Y independent given U:
  * E[M_A·M_B] = ∫ f_U(u)·E[max(u, X)]² du, E[max(u, X)] = u·F_X(u) + ∫_u^∞ x dF_X(x) (order statistics; Simpson's rule
  * on the grid maxOfNormals uses, normalGrid).
  */
-export function maxOfShared(k: number, shared: number, rectified: boolean): { mean: number; cross: number } {
-  const key = `${k}:${shared}:${rectified}`;
+export function maxOfShared(k: number, shared: number, rectified: boolean, slope = 0): { mean: number; cross: number } {
+  const key = `${k}:${shared}:${rectified}:${slope}`;
   const hit = sharedCache.get(key);
   if (hit !== undefined) return hit;
   const { steps, h, xs, pdf, cdf, weight: simpson } = normalGrid();
@@ -403,7 +406,9 @@ export function maxOfShared(k: number, shared: number, rectified: boolean): { me
   let cross = 0;
   for (let i = 0; i <= steps; i++) {
     const j = rectified && i < zero ? zero : i;
-    const g = xs[j]! * Math.pow(cdf[j]!, others) + tail[j]!;
+    let g = xs[j]! * Math.pow(cdf[j]!, others) + tail[j]!;
+    // φ(m) = max(m, 0) + a·(m − max(m, 0)) is linear in the two, so E[φ(max(u, X))] is too
+    if (rectified && slope !== 0) g += slope * (xs[i]! * Math.pow(cdf[i]!, others) + tail[i]! - g);
     const fU = shared * pdf[i]! * Math.pow(cdf[i]!, shared - 1);
     const weight = simpson[i]!;
     mean += weight * fU * g;
