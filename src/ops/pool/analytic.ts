@@ -331,7 +331,8 @@ export function pickChance(rows: readonly number[], columns: readonly number[], 
           lo[r] = empty ? ox : Math.min(lo[r]!, ox);
           hi[r] = empty ? ox + sizeX - 1 : Math.max(hi[r]!, ox + sizeX - 1);
         }
-        const id = `${lo.join(",")}/${hi.join(",")}`;
+        // lo ≥ −size and hi < size: one character each
+        const id = String.fromCharCode(...lo.map((v) => v + 64), ...hi.map((v) => v + 64));
         const entry = next.get(id);
         // a set with W added flips the sign (−1)^|S|
         if (entry === undefined) next.set(id, { lo, hi, sign: -state.sign });
