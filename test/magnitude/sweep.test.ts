@@ -169,7 +169,7 @@ const KNOWN: Known[] = [
     pattern: /^(repeat-1\.\d\.use-0\.residual-0\.dense-3\/weight-gradient:bias|inp\/weight-gradient:bias)$/,
     binades: 0.7,
     diagnosis:
-      "draw noise, not a bias of the model: these sums are mostly the loss gradient's batch mean, one Gaussian per unit of the 4-wide head, so their rms spreads by 0.5–0.57 binade from draw to draw (measured over 201 draws) and a median of 5 by ±0.3; this spec's seeds 1–5 sit low (−0.31 to −0.39, inp's −0.33; before the shared part's spread was carried, −0.41 to −0.49), seeds 6–10 at +0.08 to +0.31, seeds 11–15 at +0.23 to +0.28, and at 201 draws every bias is within −0.02 to +0.12 (before: −0.12 to +0.03). The weights, 0.45–0.74 low before the skip's curvature and its part of the branch seed, are within 0.35 (the rms-norm gains and the first branch weights +0.26 to +0.30 at 201 draws)",
+      "draw noise, not a bias of the model: these sums are mostly the loss gradient's batch mean, one Gaussian per unit of the 4-wide head, so their rms spreads by 0.5–0.57 binade from draw to draw (measured over 201 draws) and a median of 5 by ±0.3; this spec's seeds 1–5 sit low (−0.31 to −0.39, inp's −0.33; before the shared part's spread was carried, −0.41 to −0.49), seeds 6–10 at +0.08 to +0.31, seeds 11–15 at +0.23 to +0.28, and at 201 draws every bias is within −0.02 to +0.12 (before: −0.12 to +0.03). The weights, 0.45–0.74 low before the skip's curvature and its part of the branch seed, are within 0.35 (at 201 draws the first branch weights +0.02 to +0.05 since the skip's part is re-projected below the branch's activation, +0.25 to +0.28 before; the rms-norm gains still +0.26 to +0.28, their part from the skip's covariance)",
   },
   {
     spec: "s6-residual-postnorm",

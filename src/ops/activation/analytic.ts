@@ -381,11 +381,16 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
       const stein = skipStein(name, stash);
       skipMean = stein.second * skip.covariance;
       own = Math.max(own - skip.diagonalSquare, 0);
-      gradient.curvature.skip = {
-        rowSquares: d2 * d2 * skip.diagonalSquare + off * off * Math.max(skip.rowSquares - skip.diagonalSquare, 0),
-        diagonalSquare: d2 * d2 * skip.diagonalSquare,
-        covariance: stein.below * skip.covariance,
-      };
+      // the residual seed wrote that part on the branch output, as x's best linear estimate from φ(u), which holds
+      // r = E[φ']²·q_u/E[φ²] of what u holds of x (Stein's lemma; r ≤ 1 by Cauchy–Schwarz): below, where u sees all
+      // of it, the part is 1/r as large (own algebra: x's linear estimate from u, not from φ(u))
+      const r = self.outputSecond > 0 ? Math.min((off * stash.input.q) / self.outputSecond, 1) : 1;
+      const grow = r > 0 ? 1 / (r * r) : 1;
+      const rowSquares = grow * (d2 * d2 * skip.diagonalSquare + off * off * Math.max(skip.rowSquares - skip.diagonalSquare, 0));
+      const diagonalSquare = grow * d2 * d2 * skip.diagonalSquare;
+      gradient.curvature.rowSquares += rowSquares * (1 - 1 / grow);
+      gradient.curvature.diagonalSquare += diagonalSquare * (1 - 1 / grow);
+      gradient.curvature.skip = { rowSquares, diagonalSquare, covariance: stein.below * skip.covariance };
     }
     gradient.shared = Math.min((gradient.shared ?? 0) + own * self.mean * self.mean + skipMean, gradient.q);
   }
