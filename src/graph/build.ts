@@ -49,9 +49,10 @@ export function buildGraph(spec: NetworkSpec): GraphResult {
   if (input === undefined) return { ok: false, issues: walk.issues };
   const layers: GraphLayer[] = [];
   const output = expandList(walk, spec.layers, "", input, 0, layers);
-  // a shape error in the first layer also leaves nothing placed: that error is the one to tell
-  if (!walk.aborted && walk.issues.length === 0) {
-    if (layers.length === 0) walk.issues.push({ path: ["layers"], message: "the network has no layers" });
+  // a shape error in the first layer also leaves nothing placed: that error is the one to tell. The loss is checked
+  // after earlier problems too whenever the walk knows the last layer's shape, so a spec's problems come at once
+  if (!walk.aborted) {
+    if (layers.length === 0 && walk.issues.length === 0) walk.issues.push({ path: ["layers"], message: "the network has no layers" });
     else if (output !== undefined) checkLoss(walk, output);
   }
   if (walk.issues.length > 0) return { ok: false, issues: walk.issues };
@@ -189,7 +190,8 @@ function place(
   depth: number,
   out: GraphLayer[],
 ): SampleShape | undefined {
-  if (walk.names.has(name)) return failAt(walk, spec, name, `the name "${name}" is used twice; give the layers distinct names`);
+  // a name used twice leaves the shapes alone: the walk goes on, so the problems after it are told too
+  if (walk.names.has(name)) failAt(walk, spec, name, `the name "${name}" is used twice; give the layers distinct names`);
   walk.names.add(name);
   walk.count++;
   if (walk.count > MAX_LAYERS) {
@@ -212,7 +214,11 @@ function place(
 
   switch (spec.family) {
     case "dense": {
-      if (input.layout !== "features") return needFeatures(walk, spec, name, input, "dense");
+      if (input.layout !== "features") {
+        // the usual slip is a missing flatten: go on as if it were there, so the layers after it are checked too
+        needFeatures(walk, spec, name, input, "dense");
+        return positive(spec.width) ? { layout: "features", positions: 1, features: spec.width } : undefined;
+      }
       if (!positive(spec.width)) return failAt(walk, spec, name, `width must be a whole number of at least 1, got ${spec.width}`);
       weights.push(matrix("weight", [spec.width, width], width, spec.width, spec.init));
       if (spec.bias) weights.push(zeroBias(spec.width));
@@ -283,9 +289,12 @@ function place(
       if (spec.branch.length === 0) return failAt(walk, spec, name, `the residual branch is empty`);
       const inner: GraphLayer[] = [];
       const end = expandList(walk, spec.branch, `${name}.`, input, depth + 1, inner);
-      if (end === undefined) return undefined;
+      // the skip's shape is what the layers after a residual are written for: the walk goes on with it after a
+      // problem inside the branch
+      if (end === undefined) return walk.aborted ? undefined : input;
       if (!sameShape(end, input)) {
-        return failAt(walk, spec, name, `the residual branch turns ${describeShape(input)} into ${describeShape(end)}; a branch must keep the shape so it can be added back`);
+        failAt(walk, spec, name, `the residual branch turns ${describeShape(input)} into ${describeShape(end)}; a branch must keep the shape so it can be added back`);
+        return input;
       }
       branch = inner;
       output = input;

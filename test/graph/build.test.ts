@@ -88,6 +88,26 @@ describe("buildGraph expands blocks and repeats", () => {
     const found = issues(buildGraph(makeSpec([dense("same", 8), dense("same", 1)])));
     expect(found[0]?.message).toContain('"same" is used twice');
   });
+
+  test("every problem of a spec is told at once: the walk goes on after a problem whose next shape is known", () => {
+    // a residual whose branch widens (the walk goes on with the skip's shape), a name used twice, a dense on an image
+    // (taken as if flattened) and a loss whose classes do not match the last layer: four problems, one report
+    const spec = makeSpec(
+      [residual("block", [dense("widen", 16), act("relu")]), dense("same", 8), dense("same", 8), dense("head", 3)],
+      { input: features(8, 1), loss: crossEntropy(4) },
+    );
+    const found = issues(buildGraph(spec));
+    expect(found.map((f) => f.message)).toEqual([
+      "block: the residual branch turns 1 position × 8 features into 1 position × 16 features; a branch must keep the shape so it can be added back",
+      'same: the name "same" is used twice; give the layers distinct names',
+      "cross-entropy has 4 classes but the last layer gives 3 features",
+    ]);
+    const onImage = issues(buildGraph(makeSpec([conv("c", 2, 3), dense("d", 5), dense("head", 3)], { input: image(1, 6, 6), loss: crossEntropy(4) })));
+    expect(onImage.map((f) => f.message)).toEqual([
+      "d: dense needs a features input (positions × features), got image 2 × 6 × 6; add a flatten first",
+      "cross-entropy has 4 classes but the last layer gives 3 features",
+    ]);
+  });
 });
 
 describe("buildGraph tracks shapes, fans and weights", () => {
