@@ -5,7 +5,7 @@
  */
 import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import { readSpecFile } from "../spec/parse.js";
-import type { ErrorPosition, RowError, SpecSummary } from "./types.js";
+import { oneProblem, type ErrorPosition, type RowError, type SpecSummary } from "./types.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
 
 /** What a worker is asked to evaluate. */
@@ -44,8 +44,8 @@ export interface TextHooks<T = SpecSummary> extends Omit<EvaluateHooks<T>, "read
   vary?: (variant: Variant) => VariedText;
 }
 
-function inputError(message: string, position?: RowError["position"]): TaskFailure {
-  return { status: "error", error: position ? { kind: "input", message, position } : { kind: "input", message } };
+function inputError(message: string, position: ErrorPosition): TaskFailure {
+  return { status: "error", error: oneProblem("input", message, position) };
 }
 
 /**
@@ -55,7 +55,8 @@ function inputError(message: string, position?: RowError["position"]): TaskFailu
 export function issuesError(issues: readonly SpecIssue[], originalLine: (line: number) => number = (line) => line): RowError {
   const mapped = issues.map((issue) => (issue.line > 0 ? { ...issue, line: originalLine(issue.line) } : issue));
   const first = mapped[0];
-  if (!first) return { kind: "input", message: "the spec is not valid" };
+  // a failed parse always carries an issue; the fallback keeps the row's shape
+  if (!first) return oneProblem("input", "the spec is not valid", { file: "" });
   const more = mapped.length - 1;
   const message = formatSpecIssue(first) + (more > 0 ? ` (and ${more} more ${more === 1 ? "problem" : "problems"})` : "");
   // on every row of spec problems, one or several, so that a script reads one shape
@@ -105,7 +106,7 @@ export async function readSpecText(file: string, readText?: EvaluateHooks["readT
     const read = await readSpecFile(file, readText);
     return read.ok ? read.text : { status: "error", error: issuesError([read.issue]) };
   } catch (error) {
-    return { status: "error", error: { kind: "internal", message: `${file}: ${error instanceof Error ? error.message : String(error)}` } };
+    return { status: "error", error: oneProblem("internal", `${file}: ${error instanceof Error ? error.message : String(error)}`, { file }) };
   }
 }
 
@@ -146,6 +147,6 @@ export async function evaluateText<T = SpecSummary>(file: string, original: stri
     // library functions throw RangeError for values the spec allowed but the model cannot take;
     // anything else is a failure of headroom itself
     const kind = error instanceof RangeError ? "input" : "internal";
-    return { status: "error", error: { kind, message: `${file}: ${message}` } };
+    return { status: "error", error: oneProblem(kind, `${file}: ${message}`, { file }) };
   }
 }

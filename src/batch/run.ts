@@ -5,7 +5,7 @@ import type { BatchInput } from "./paths.js";
 import { poolWorkers, runPool, type TaskOutcome } from "./pool.js";
 import { tuneTieringForBatch } from "./tiering.js";
 import type { SpecTask, TaskResult } from "./evaluate.js";
-import type { BatchRow } from "./types.js";
+import { oneProblem, type BatchRow } from "./types.js";
 import type { Variant } from "./vary.js";
 
 /** Options of {@link runBatch}. */
@@ -37,7 +37,7 @@ export function planBatch(inputs: readonly BatchInput[], variants: readonly Vari
           file: input.argument,
           variant: null,
           status: "error",
-          error: { kind: "input", message: input.message, position: { file: input.argument } },
+          error: oneProblem("input", input.message, { file: input.argument }),
         },
       });
       continue;
@@ -80,7 +80,7 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
     untune();
   }
   const rows: BatchRow[] = plan.map((entry, index) =>
-    "row" in entry ? entry.row : { index, file: entry.task.file, variant: entry.task.variant?.name ?? null, status: "error", error: { kind: "internal", message: "not evaluated" } },
+    "row" in entry ? entry.row : { index, file: entry.task.file, variant: entry.task.variant?.name ?? null, status: "error", error: oneProblem("internal", "not evaluated", { file: entry.task.file }) },
   );
   outcomes.forEach((outcome, i) => {
     const index = taskRow[i]!;
@@ -89,7 +89,7 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
     const variant = task.variant?.name ?? null;
     // written out, not `{ ...head, status }`: on Node 20 a literal that adds keys after a spread costs microseconds
     if (!outcome.ok) {
-      rows[index] = { index, file, variant, status: "error", error: { kind: "internal", message: `${task.file}: ${outcome.error}` } };
+      rows[index] = { index, file, variant, status: "error", error: oneProblem("internal", `${task.file}: ${outcome.error}`, { file }) };
     } else if (outcome.value.status === "ok") {
       const warnings = outcome.value.warnings;
       rows[index] =

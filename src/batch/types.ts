@@ -74,11 +74,17 @@ export interface RowError {
   message: string;
   position?: ErrorPosition;
   /**
-   * every problem of the spec, in the file's order, one or more (the `message` gives the first and a count of the
-   * others): each `message` a whole line starting with its position, as `check` prints it. Absent for an error that is
-   * not the spec's problems (a file that cannot be read without a position, a failure inside headroom)
+   * every problem, in the file's order, one or more (the `message` gives the first and a count of the others): each
+   * `message` a whole line starting with its position, as `check` prints it. An error that is not a spec's problems (a
+   * file that cannot be read, a pattern that matches nothing, a failure inside headroom) is its one entry, so a
+   * script reads one shape on every error row
    */
-  issues?: { message: string; position: ErrorPosition }[];
+  issues: { message: string; position: ErrorPosition }[];
+}
+
+/** A row error that is one problem: `issues` holds it alone. */
+export function oneProblem(kind: RowError["kind"], message: string, position: ErrorPosition): RowError {
+  return { kind, message, position, issues: [{ message, position }] };
 }
 
 /** One row of a batch: a spec file, or one variant of it. */

@@ -115,6 +115,16 @@ describe("runBatch (worker threads; run npm run build first)", () => {
     expect(broken.status === "error" && broken.error.position).toEqual({ file: files[2], line: 4, column: 10 });
     const crashed = rows[5]!;
     expect(crashed.status === "error" && crashed.error.message).toMatch(/worker stopped: exited with code 9/);
+    // every error row lists its problems, one or more, in one shape (README, batch --jsonl): a pattern that matches
+    // nothing and a failure inside headroom are their own one entry
+    for (const row of rows) {
+      if (row.status !== "error") continue;
+      expect(row.error.issues.length, row.file).toBeGreaterThan(0);
+      expect(row.error.issues[0]!.message, row.file).toBe(row.error.message.replace(/ \(and \d+ more problems?\)$/, ""));
+    }
+    expect(rows[3]!.status === "error" && rows[3]!.error.issues).toEqual([
+      { message: "missing/*.yaml: no file matches this pattern", position: { file: "missing/*.yaml" } },
+    ]);
     expect(progress.at(-1)).toBe(7);
   });
 

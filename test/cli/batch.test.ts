@@ -162,6 +162,7 @@ describe("headroom batch exit codes and options", () => {
     const rows = run.stdout.trim().split("\n").map((line) => JSON.parse(line));
     expect(rows.map((r) => r.status)).toEqual(["ok", "error"]);
     expect(rows[1].error.message).toBe(`${join(small, "missing.yaml")}: no such file or folder`);
+    expect(rows[1].error.issues).toEqual([{ message: rows[1].error.message, position: { file: join(small, "missing.yaml") } }]);
     expect(run.status).toBe(2);
     expect(run.stderr).toBe("");
   });

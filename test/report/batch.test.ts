@@ -1,6 +1,6 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, test } from "vitest";
-import { batchExitCode, type BatchRow } from "../../src/batch/types.js";
+import { batchExitCode, oneProblem, type BatchRow } from "../../src/batch/types.js";
 import { check } from "../../src/check.js";
 import { summarizeCheck } from "../../src/report/summary.js";
 import { parseSpec } from "../../src/spec/index.js";
@@ -58,11 +58,7 @@ const ROWS: BatchRow[] = [
     file: "sweep/broken.yaml",
     variant: null,
     status: "error",
-    error: {
-      kind: "input",
-      message: "sweep/broken.yaml:4:10: training.batch: expected a positive whole number",
-      position: { file: "sweep/broken.yaml", line: 4, column: 10 },
-    },
+    error: oneProblem("input", "sweep/broken.yaml:4:10: training.batch: expected a positive whole number", { file: "sweep/broken.yaml", line: 4, column: 10 }),
   },
   {
     index: 3,
@@ -96,7 +92,7 @@ describe("batchExitCode (README: 0 all fit, 1 some at risk or failing, 2 input e
     expect(batchExitCode([ok])).toBe(0);
     expect(batchExitCode([ok, risk])).toBe(1);
     expect(batchExitCode([risk, bad, ok])).toBe(2);
-    expect(batchExitCode([bad, { index: 9, file: "x", variant: null, status: "error", error: { kind: "internal", message: "worker stopped" } }])).toBe(3);
+    expect(batchExitCode([bad, { index: 9, file: "x", variant: null, status: "error", error: oneProblem("internal", "worker stopped", { file: "x" }) }])).toBe(3);
   });
 });
 
@@ -104,7 +100,7 @@ describe("renderBatchText", () => {
   test("a file name with a line break or ESC keeps one table line per row and sends no control character to the terminal (ECMA-48 §5.3: ESC starts a command)", () => {
     const odd: BatchRow[] = [
       { ...ROWS[0]!, file: "sweep/two\nlines\u009b.yaml" } as BatchRow,
-      { index: 1, file: "sweep/\u001b[2Jclear.yaml", variant: null, status: "error", error: { kind: "input", message: "sweep/\u001b[2Jclear.yaml:1:1: the spec is empty: it needs at least input, training and layers", position: { file: "sweep/\u001b[2Jclear.yaml", line: 1, column: 1 } } },
+      { index: 1, file: "sweep/\u001b[2Jclear.yaml", variant: null, status: "error", error: oneProblem("input", "sweep/\u001b[2Jclear.yaml:1:1: the spec is empty: it needs at least input, training and layers", { file: "sweep/\u001b[2Jclear.yaml", line: 1, column: 1 }) },
     ];
     const text = renderBatchText(odd);
     expect(text).not.toMatch(/[\u0000-\u0009\u000b-\u001f\u007f-\u009f]/);
