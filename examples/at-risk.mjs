@@ -23,7 +23,7 @@ for (const name of files) {
   } catch (error) {
     if (!(error instanceof CheckInputError)) throw error;
     invalid += 1;
-    console.log(`${name}: the network cannot be built: ${error.message}`);
+    console.log(`${name}: the network cannot be built: ${error.issues.map((issue) => issue.message).join("; ")}`);
     continue;
   }
   if (result.verdict === "fits") continue;
