@@ -378,7 +378,7 @@ function checkLoss(walk: Walk, output: SampleShape): void {
   } else if (output.features !== loss.classes) {
     walk.issues.push({
       path: ["training", "loss", "classes"],
-      message: `cross-entropy has ${loss.classes} classes but the last layer gives ${output.features} features`,
+      message: `cross-entropy has ${loss.classes} classes but the last layer gives ${output.features} feature${output.features === 1 ? "" : "s"}`,
     });
   }
 }

@@ -53,9 +53,9 @@ export function batchShape(batch: number, shape: SampleShape): number[] {
 export function describeShape(shape: SampleShape): string {
   switch (shape.layout) {
     case "tokens":
-      return `${shape.positions} token ids`;
+      return `${shape.positions} token id${shape.positions === 1 ? "" : "s"}`;
     case "features":
-      return `${shape.positions} position${shape.positions === 1 ? "" : "s"} × ${shape.features} features`;
+      return `${shape.positions} position${shape.positions === 1 ? "" : "s"} × ${shape.features} feature${shape.features === 1 ? "" : "s"}`;
     case "image":
       return `image ${shape.channels} × ${shape.height} × ${shape.width}`;
   }

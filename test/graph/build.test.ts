@@ -1,5 +1,5 @@
 import { describe, expect, test } from "vitest";
-import { buildGraph, convSize, forwardOrder } from "../../src/graph/index.js";
+import { buildGraph, convSize, describeShape, forwardOrder } from "../../src/graph/index.js";
 import type { Graph, GraphResult } from "../../src/graph/index.js";
 import { check, CheckInputError } from "../../src/index.js";
 import {
@@ -102,6 +102,9 @@ describe("buildGraph expands blocks and repeats", () => {
       'same: the name "same" is used twice; give the layers distinct names',
       "cross-entropy has 4 classes but the last layer gives 3 features",
     ]);
+    // one of a thing is singular in every message that counts it
+    expect(describeShape({ layout: "features", positions: 1, features: 1 })).toBe("1 position × 1 feature");
+    expect(describeShape({ layout: "tokens", positions: 1 })).toBe("1 token id");
     const onImage = issues(buildGraph(makeSpec([conv("c", 2, 3), dense("d", 5), dense("head", 3)], { input: image(1, 6, 6), loss: crossEntropy(4) })));
     expect(onImage.map((f) => f.message)).toEqual([
       "d: dense needs a features input (positions × features), got image 2 × 6 × 6; add a flatten first",
