@@ -264,8 +264,8 @@ class Phase {
       for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
       current = chain(current, layer.name, result.factors, this.build);
       signal = result.output;
-      // two features' covariance is carried through dense layers, activations, layer and RMS norms, dropout and residual
-      // blocks only
+      // two features' covariance is carried through dense layers, activations, layer and RMS norms, dropout, residual
+      // blocks and attention only
       if (signal.featureCovariance !== undefined && !CARRIES_COVARIANCE.has(layer.family)) {
         signal = { ...signal };
         delete signal.featureCovariance;
@@ -449,9 +449,9 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
 }
 
 const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);
-const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual"]);
+const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "attention"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
-const CARRIES_CURVATURE: ReadonlySet<string> = new Set([...CARRIES_COVARIANCE, "flatten"]);
+const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "flatten"]);
 
 /**
  * What a gradient keeps on its way down: only the rectifier right before a max-pool may use the arg-max position,

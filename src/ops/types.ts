@@ -82,7 +82,8 @@ export interface Signal {
    * E[Cov(x_i, x_j)²]/q² for two different features of one sample (covariance over the data, the weights fixed): the
    * outputs of a random linear map share its inputs, 1/fan_in of it. The loss's curvature sums E[x xᵀ] into the next
    * weight gradient, whose off-diagonal adds (fan_in − 1) times this. Absent: 0 (carried through dense layers,
-   * pointwise activations, layer and RMS norms, dropout, and residual blocks whose branch holds only these)
+   * pointwise activations, layer and RMS norms, dropout and attention, and residual blocks whose branch holds only the
+   * first five)
    */
   featureCovariance?: number;
   /**

@@ -283,6 +283,18 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const outGain = ctx.variance(wo) * wo.fanIn;
     const output = linearOutput(outGain * heads.q, heads.logVar, D, outGain * valueShared);
     output.positionCorrelation = heads.positionCorrelation ?? 0;
+    // two features of the output covary over the data (featureCovariance): heads a, b are rows of W_v applied to the
+    // averages x̄ of their heads, Cov(x̄^h, x̄^h') = κ·Cov(x) with κ = Σ_j p_ij² in one head and Σ_j E[p_ij]² (1/P full,
+    // H_P/P causal) across two, so E[Cov_ab²] = var_v²·D·κ²·(Var[x]² + (D − 1)·E[Cov(x_k, x_l)²]); W_o then maps them as
+    // a dense layer does (own algebra)
+    const expectedRow = P > 0 ? (spec.causal ? harmonic(P) : 1) / P : 0;
+    const kappa2 = inner > 1 ? ((d - 1) * rows.sumSquares * rows.sumSquares + (inner - d) * expectedRow * expectedRow) / (inner - 1) : 0;
+    const inputVariance = Math.max(input.q - sharedOf(input), 0);
+    const headsCovariance =
+      headsQ > 0 && D > 0 ? ((value.gain * value.gain) / D) * kappa2 * (inputVariance * inputVariance + (D - 1) * (input.featureCovariance ?? 0) * input.q * input.q) / (headsQ * headsQ) : 0;
+    const headsVariance = Math.max(headsQ - valueShared, 0);
+    output.featureCovariance =
+      output.q > 0 && inner > 0 ? ((outGain * outGain) / inner) * (headsVariance * headsVariance + (inner - 1) * headsCovariance * headsQ * headsQ) / (output.q * output.q) : 0;
 
     // the ledger factors, made only with a ledger (one closure instead of every factor and its wording in both passes)
     const forwardFactors = () => {
