@@ -157,11 +157,11 @@ export interface Gradient {
    */
   homogeneousSum?: number;
   /**
-   * set by a ReLU's backward rule on the gradient it passes down: the sample and position correlations of the gradient
-   * before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose
+   * set by a ReLU's backward rule on the gradient it passes down: the sample, position and cross (two samples at two
+   * positions) correlations of the gradient before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose
    * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']
    */
-  reluGated?: { sample: number; position: number };
+  reluGated?: { sample: number; position: number; cross: number };
   /**
    * set by a batch norm's backward on the gradient it passes to the rectifier whose channels it normalises (Signal.
    * channelSpread), each channel weighed by its gain²/(var_c + ε): E[φ'²], which that rectifier uses in place of its own

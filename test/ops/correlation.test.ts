@@ -131,13 +131,23 @@ describe("batch norm's gradient sums to zero over batch × pixels (Ioffe & Szege
 describe("a norm's gain gradient when a ReLU gates the gradient right after it", () => {
   test("x̂·relu'(x̂)·b = relu(x̂)·b: pixels with a shared b (an average-pool's copy) share E[relu(u)relu(v)] = q/2π at c = 0 (Cho & Saul 2009)", () => {
     const { layer, ctx, forward } = batchNormCase(signal(2, 0));
-    const gated: Gradient = { q: 0.5, zeroFraction: 0.5, shape: "gaussian", logVar: 0, shared: 0, positionCorrelation: 0.5, reluGated: { sample: 0, position: 1 } };
+    const gated: Gradient = { q: 0.5, zeroFraction: 0.5, shape: "gaussian", logVar: 0, shared: 0, positionCorrelation: 0.5, reluGated: { sample: 0, position: 1, cross: 0 } };
     const gain = normRule.backward(ctx, layer, forward.stash, gated, {}).weightGradients.find((w) => w.weight === "gain");
     const ns = forward.stash.normalisedSecond;
     // diagonal E[x̂²·1(x̂ > 0)]·E[b²] = (ns/2)·1; pairs of pixels (ns/2π)·1, i.e. correlation 1/π; pairs of samples the same mean part
     expect(gain?.q).toBeCloseTo(correlatedSum(8, 36, ns * 0.5, 0, 1 / Math.PI), 9);
     const ungated = normRule.backward(ctx, layer, forward.stash, { ...gated, reluGated: undefined }, {}).weightGradients.find((w) => w.weight === "gain");
     expect(ungated?.q).toBeCloseTo(8 * 36 * ns * 0.5, 9);
+  });
+
+  test("two samples at two positions pair by the gradient's own cross correlation, not its sample one (a flatten's positions meet independent weights)", () => {
+    const { layer, ctx, forward } = batchNormCase(signal(2, 0));
+    // b shared by two samples at one position (the same weights after a flatten), unrelated at two
+    const gated: Gradient = { q: 0.5, zeroFraction: 0.5, shape: "gaussian", logVar: 0, shared: 0.25, positionCorrelation: 0, crossCorrelation: 0, reluGated: { sample: 0.5, position: 0, cross: 0 } };
+    const gain = normRule.backward(ctx, layer, forward.stash, gated, {}).weightGradients.find((w) => w.weight === "gain");
+    const ns = forward.stash.normalisedSecond;
+    // at c = 0 a pair of relu(x̂) shares q/2π (Cho & Saul 2009): a pair of terms 0.5/π at one position, 0 at two
+    expect(gain?.q).toBeCloseTo(correlatedSum(8, 36, ns * 0.5, 0.5 / Math.PI, 0, 0), 9);
   });
 });
 

@@ -12,7 +12,7 @@ import { activationFunction } from "../../numeric/activations.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, SOURCES, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { activationKappa } from "./moments.js";
 
@@ -356,7 +356,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   if (allZero > 0) gradient.allZero = allZero;
   // Euler's theorem: u·φ'(u) = φ(u) for a positively homogeneous φ, so Σ u·δ_u = Σ φ(u)·δ_φ
   if (output.homogeneousSum !== undefined && (name === "relu" || name === "leaky-relu")) gradient.homogeneousSum = output.homogeneousSum;
-  if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output) };
+  if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output), cross: crossCorrelationOf(output) };
   const curvature = output.curvature;
   if (curvature !== undefined && k === undefined) {
     // M'' = Φ'·M·Φ' with Φ' = diag(φ'): on the diagonal E[φ'²], off it E[φ'_i·φ'_j] = E[φ']² (two units of one sample,

@@ -13,7 +13,7 @@ import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
 import { sumLogVarOf } from "../dense/analytic.js";
 import { type ChannelInverse, channelInverse } from "./channels.js";
-import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -47,13 +47,15 @@ export function normTerms(layer: GraphLayer, batch: number): number {
  * after the norm, δ = relu'(x̂)·b and x̂·δ = relu(x̂)·b: a pair shares E[relu(x̂)relu(x̂')]·E[b b'] (arc-cosine kernel,
  * Cho & Saul 2009) against E[x̂²·relu'(x̂)]·E[b²] = E[x̂²]/2·E[b²] on the diagonal. Otherwise x̂ and δ are independent.
  */
-function gainPairCorrelations(stash: NormStash, output: Gradient): [number, number] {
+function gainPairCorrelations(stash: NormStash, output: Gradient): [number, number, number] {
   const c = stash.normalisedCorrelation;
   const q = stash.normalisedSecond;
-  if (output.reluGated === undefined || !(q > 0)) return [c.sample * sampleCorrelationOf(output), c.position * positionCorrelationOf(output)];
+  // two samples at two positions: the normalised values' correlation taken as two samples' (as crossCorrelationOf does),
+  // the gradient's its own (zero where a flatten's positions fed independent weights)
+  if (output.reluGated === undefined || !(q > 0)) return [c.sample * sampleCorrelationOf(output), c.position * positionCorrelationOf(output), c.sample * crossCorrelationOf(output)];
   const m = activationMoments("relu", q);
   const pair = (x: number, b: number): number => (2 * crossMoments("relu", 0, q, x, m).value * b) / q;
-  return [pair(c.sample, output.reluGated.sample), pair(c.position, output.reluGated.position)];
+  return [pair(c.sample, output.reluGated.sample), pair(c.position, output.reluGated.position), pair(c.sample, output.reluGated.cross)];
 }
 
 export const normRule: AnalyticRule<NormStash> = {
@@ -165,7 +167,7 @@ export const normRule: AnalyticRule<NormStash> = {
         // pairs of terms add what positions (samples) share of the normalised input and of the gradient (common practice)
         q: gainQ,
         alignedQ: aligned,
-        betweenQ: betweenBatches(ctx.batch, positions, stash.normalisedSecond * output.q, pairs[0]),
+        betweenQ: betweenBatches(ctx.batch, positions, stash.normalisedSecond * output.q, pairs[0], pairs[2]),
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
