@@ -5,7 +5,7 @@
 import type { Format } from "../formats/index.js";
 import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, type RiskThresholds } from "../risk/index.js";
+import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, type RangeLimits, type RiskThresholds } from "../risk/index.js";
 import {
   flushedSecondMoments,
   flushedSecondMomentsVerdict,
@@ -339,7 +339,7 @@ export function checkOptimizer(
     };
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards, judged);
+  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, stateLimits, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards, judged);
 }
 
 // Zero second moments per step where a vanishing epsilon is judged, and the weight gradient giving most ("" when
@@ -460,6 +460,8 @@ function summarise(
     stateFormat: Format;
     /** the smallest value the state format keeps: its smallest subnormal, or its smallest normal where subnormals flush */
     stateSmallest: number;
+    /** the state format's limits, as the epsilon is rounded into it */
+    stateLimits: RangeLimits;
     updateFormat: Format;
     binary32: Format;
     compensatedFormat: Pick<Format, "precision" | "emin">;
@@ -608,7 +610,7 @@ function summarise(
         ? `about ${plainNumber(zeros.perStep)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
     tell("optimizer-constant", `epsilon ${plainNumber(epsilon.value)} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
-    const raiseTo = `raise epsilon to at least ${roundedUp(formats.stateSmallest)}`;
+    const raiseTo = `raise epsilon to at least ${epsilonFloor(formats.stateSmallest, (x) => storedEpsilon(formats.stateLimits, x) !== 0)}`;
     remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }
   return {
@@ -626,10 +628,23 @@ function summarise(
   };
 }
 
-/** A positive value written with three significant digits, rounded up so that it is not below `x`. */
-function roundedUp(x: number): string {
-  const digits = 10 ** (Math.floor(Math.log10(x)) - 2);
-  let up = Math.ceil(x / digits) * digits;
-  if (up < x) up += digits;
-  return up.toExponential(2);
+/**
+ * The smallest value the state format keeps (a power of two), written so that the printed number is itself enough:
+ * to nearest at three significant digits when that number rounds to a nonzero value in the state format
+ * (2^-24 = 5.96e-8 in binary16: round to nearest, IEEE 754-2019 §4.3.1), else rounded up at those digits (2^-14 with
+ * subnormals flushed: 6.10e-5 rounds to a subnormal and flushes, 6.11e-5 does not).
+ */
+export function epsilonFloor(smallest: number, keeps: (x: number) => boolean): string {
+  const power = `2^${Math.round(Math.log2(smallest))}`;
+  const nearest = smallest.toExponential(2);
+  if (keeps(Number(nearest))) return `${compactExponent(nearest)} (${power})`;
+  const digits = 10 ** (Math.floor(Math.log10(smallest)) - 2);
+  let up = Math.ceil(smallest / digits) * digits;
+  while (!keeps(up) || up < smallest) up += digits;
+  return `${compactExponent(up.toExponential(2))} (just above ${power})`;
+}
+
+// "5.96e-8", as the other figures are written (no "+", no leading zeros in the exponent)
+function compactExponent(text: string): string {
+  return text.replace("e+", "e");
 }

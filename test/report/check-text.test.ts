@@ -106,7 +106,7 @@ describe("binary16 optimizer states: each problem is told once", () => {
         "  1. remedy: hold the optimizer states in binary32 instead of binary16: less than 1e-6% of the",
         "     second moments flush at the first step instead of 38.0% (+4 bytes per parameter for the two",
         "     states)",
-        "  2. remedy: compute the update in binary32, or raise epsilon to at least 5.97e-8",
+        "  2. remedy: compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24)",
         "",
         "",
       ].join("\n"),

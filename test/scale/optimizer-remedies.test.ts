@@ -195,15 +195,18 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
     expect(result.remedies).toEqual([
       // Adam keeps two states per parameter (Kingma & Ba 2015): 2 × (4 − 2) bytes more
       "hold the optimizer states in binary32 instead of binary16: 0% of the second moments flush at the first step instead of 100% (+4 bytes per parameter for the two states)",
-      "compute the update in binary32, or raise epsilon to at least 5.97e-8",
+      // 2^-24 = 5.9604644775390625e-8 is binary16's smallest subnormal (IEEE 754-2019 §3.6); printed to nearest, as
+      // 5.96e-8 rounds to it (the old rule printed 5.97e-8, rounded up though 5.96e-8 is already enough)
+      "compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24)",
     ]);
-    expect(roundTo(getFormat("binary16"), 5.97e-8)).toBeGreaterThan(0);
+    // the printed value is itself enough: round to nearest (IEEE 754-2019 §4.3.1) takes it to 2^-24, not to 0
+    expect(roundTo(getFormat("binary16"), 5.96e-8)).toBe(2 ** -24);
   });
 
   it("with subnormals flushed, the epsilon to raise to is binary16's smallest normal, rounded up", () => {
     const result = checkOptimizer(adam(1e-3), plan("binary16", "binary32", "binary16", true), prediction());
     // binary16's smallest normal is 2^-14 = 6.1035e-5 (IEEE 754-2019); 6.10e-5 would flush, 6.11e-5 does not
-    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 6.11e-5");
+    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 6.11e-5 (just above 2^-14)");
     expect(roundTo(getFormat("binary16"), 6.11e-5, { flushSubnormals: true })).toBeGreaterThan(0);
     expect(roundTo(getFormat("binary16"), 6.1e-5, { flushSubnormals: true })).toBe(0);
   });
