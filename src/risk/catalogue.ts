@@ -77,6 +77,16 @@ export const FINDING_INFO = {
       "above 10%. Usual remedy: a loss scale (gradients), a wider format for the tensor, or a binary32 " +
       "master copy (weights and updates).",
   },
+  "probability-mass-flushed": {
+    title: "Probability mass flushed",
+    short: "flush probability mass to zero",
+    description:
+      "Softmax probabilities weigh the values they average, so what their flushed elements take from a row is their " +
+      "share of its probability mass (the first moment), not their count: the row's weighted average loses at most " +
+      "that share. At risk above 1%, fails above 10% (the amplitudes √1e-4 and √1e-2 of the gradient energy limits). " +
+      "Usual remedy: keep the probabilities in a format with more range (bfloat16), or fold the softmax into the " +
+      "weighted sum.",
+  },
   "subnormal-values": {
     title: "Subnormal values",
     short: "hold many subnormals",

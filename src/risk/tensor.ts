@@ -19,6 +19,7 @@ import type { BlockScaledRisk } from "./blocks.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
 import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
+import { normalCdf } from "./_math.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
 export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
@@ -182,7 +183,13 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
   const end = scaled.same ? start : evaluate(scaled.end, statistics.end, limits, options);
   const endScaleLog2 = evaluatedScaleLog2;
   const worst = worseOf(start, end);
-  const findings = tensorFindings(tensor, limits, worst, start, end, options);
+  let mass: FlushedMass | null = null;
+  if (isProbabilityRow(tensor)) {
+    const startMass = flushedMass(scaled.start, startScaleLog2, start, limits);
+    const endMass = scaled.same && startScaleLog2 === endScaleLog2 ? startMass : flushedMass(scaled.end, endScaleLog2, end, limits);
+    mass = { start: startMass, end: endMass };
+  }
+  const findings = tensorFindings(tensor, limits, worst, start, end, options, mass);
   return {
     format: limits.format,
     judged: options.judged,
@@ -193,6 +200,43 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
     verdict: worstVerdict(findings),
     findings,
   };
+}
+
+/**
+ * Whether a tensor is a row of softmax probabilities: an activation whose elements are log-normal and capped (the
+ * engine's softmax and attention probabilities, bound 1). Its flushed elements are judged by the probability mass they
+ * carry ({@link flushedMass}), not by their count.
+ */
+export function isProbabilityRow(tensor: Pick<TensorPrediction, "role" | "start">): boolean {
+  const p = tensor.start;
+  return tensor.role === "activation" && p.shape === "log-normal" && p.bound !== undefined && p.bound > 0;
+}
+
+/** The share of each row's probability mass that rounds to zero, at the start and the end of the horizon. */
+interface FlushedMass {
+  start: number;
+  end: number;
+}
+
+/**
+ * Share of the first moment Σ|x| carried by the elements that round to zero, over draws: E[|x|·1{|x| ≤ t}]/E[|x|].
+ * For a probability row (Σ p = 1) it is the probability mass a flush takes from the row, and so the largest relative
+ * change of the weighted average Σ p_j·v_j. Log-normal elements, log2|x| ~ N(m, s²) with m set by the rms (ln|x| ~
+ * N(μ, σ²), σ = s·ln 2, μ = ln rms − σ²): E[x·1{x ≤ t}]/E[x] = Φ((ln t − μ − σ²)/σ) = Φ(log2(t/rms)/s) (the partial
+ * first moment of the log-normal, e.g. Johnson, Kotz & Balakrishnan 1994, Continuous Univariate Distributions 1,
+ * §14.3; from memory); the scale's draws, log2 rms ~ N(log2 r̄, S²), add in quadrature: Φ(log2(t/r̄)/√(s² + S²)).
+ * Other laws, and where scale factors act, are charged the share of flushed elements (at least the mass share for
+ * any law: the flushed elements are the smallest).
+ */
+function flushedMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
+  const s = profile.elementLog2Spread ?? 0;
+  if (risk.flushedFraction === 0 || !(profile.rms > 0)) return 0;
+  // a per-tensor scale multiplies the elements before the conversion (the profile here is before it); block scale
+  // factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
+  if (!(s > 0)) return risk.flushedFraction;
+  const level = limits.flushBound * 2 ** -scaleLog2;
+  const spread = Math.sqrt(s * s + profile.log2Spread * profile.log2Spread);
+  return Math.min(risk.flushedFraction, normalCdf(Math.log2(level / profile.rms) / spread));
 }
 
 // the per-tensor scale exponent of the last `evaluate` (a second return value, without an object per call)
@@ -291,6 +335,7 @@ function tensorFindings(
   start: ProfileRisk,
   end: ProfileRisk,
   options: TensorRiskOptions,
+  mass: FlushedMass | null,
 ): Finding[] {
   // gathered in FOUND, then copied out at their exact length (one allocation site for every tensor's findings,
   // judged or not, so the arrays share one elements kind): the result keeps thousands of these arrays, and one
@@ -361,7 +406,31 @@ function tensorFindings(
   }
   // worst.flushAt follows the flushed energy; a share of elements is told at the moment that share is worst, which
   // can be the other end of the horizon (a spread widening at the end flushes more elements but less energy)
-  const flushed = grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
+  // a probability row: the mass its flushed elements carry, against the same limits (its amplitude, as a share of
+  // elements is; flushedMass)
+  if (mass !== null) {
+    const value = Math.max(mass.start, mass.end);
+    const lost = grade(value, t.flushedAtRisk, t.flushedFails);
+    if (lost !== null) {
+      const at = moreAt(mass.start, mass.end, worst.flushAt);
+      const threshold = lost === "fails" ? t.flushedFails : t.flushedAtRisk;
+      findings[found++] = {
+        format,
+        subject,
+        source: "tensor",
+        kind: "probability-mass-flushed",
+        severity: lost,
+        value,
+        threshold,
+        at,
+        sentence: [
+          "The elements of ", subject, " that round to zero in ", format, " ", when(at), " carry ", percent(value),
+          " of each row's probability mass (limit ", percent(threshold), ").",
+        ].join(""),
+      };
+    }
+  }
+  const flushed = mass !== null ? null : grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
     const at = moreAt(start.flushedFraction, end.flushedFraction, worst.flushAt);
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;

@@ -32,6 +32,7 @@ export const FINDING_KINDS = [
   "little-headroom",
   "gradient-energy-flushed",
   "flushed-values",
+  "probability-mass-flushed",
   "subnormal-values",
   "softmax-exp-overflow",
   "softmax-sum-overflow",

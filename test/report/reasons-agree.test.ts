@@ -27,12 +27,13 @@ describe("the reasons name the tensor the lists of findings put first", () => {
     // an invented frame tagger: four identical attention blocks, no scaling of the logits, 1500 positions; a layer norm
     // with ε = 0 hands each block's attention the same unit-variance input, so the four blocks flush exactly alike (with
     // the default ε their variances differ from the eighth digit on, ε against a growing residual stream, and so do
-    // their row moments)
+    // their row moments); subnormals flushed (flush bound 2^-14, IEEE 754-2019 binary16 smallest normal), so the rows lose
+    // more than 1% of their probability mass and each block has a finding
     const text = [
       "name: harbour-radio",
       "input: { features: 80, positions: 1500, scale: 4.0 }",
       "training: { batch: 16, loss: { kind: cross-entropy, classes: 64 } }",
-      "precision: { activations: binary16 }",
+      "precision: { activations: binary16, flush-subnormals: true }",
       "layers:",
       "  - { type: dense, name: frontend, width: 256, init: he-normal }",
       "  - type: repeat",
@@ -45,11 +46,11 @@ describe("the reasons name the tensor the lists of findings put first", () => {
     const parsed = parseSpec(text, "harbour-radio.yaml");
     if (!parsed.ok) throw new Error("the inline spec does not parse");
     const result = check(parsed.spec);
-    const flushed = result.formats[0]!.findings.filter((f) => f.kind === "flushed-values" && f.subject.endsWith("activation:probabilities"));
+    const flushed = result.formats[0]!.findings.filter((f) => f.kind === "probability-mass-flushed" && f.subject.endsWith("activation:probabilities"));
     expect(new Set(flushed.map((f) => f.value)).size).toBe(1);
     expect(flushed.length).toBe(4);
     const reason = result.formats[0]!.reasons.find((r) => r.includes("activation:probabilities"));
     expect(reason).toContain("enc.0.att.attention-1/activation:probabilities");
-    expect(findingsWorstFirst(result).find((f) => f.kind === "flushed-values")!.subject).toBe("enc.0.att.attention-1/activation:probabilities");
+    expect(findingsWorstFirst(result).find((f) => f.kind === "probability-mass-flushed")!.subject).toBe("enc.0.att.attention-1/activation:probabilities");
   });
 });
