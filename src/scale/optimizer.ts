@@ -28,7 +28,10 @@ export { swampedShare } from "./swamping.js";
 /** The learning rates the assessment looks at: the smallest and largest of the schedule. */
 export type SchedulePoint = "warm-up start" | "peak" | "end";
 
-/** Shares of weight updates lost to swamping at one point of the schedule, for the plan and for each remedy. */
+/**
+ * Shares of the weight update's squared norm lost to swamping at one point of the schedule, for the plan and for each
+ * remedy (src/scale/swamping.ts: updates below half an ulp of their weight, weighed by their energy).
+ */
 export interface UpdateLoss {
   at: SchedulePoint;
   learningRate: number;
@@ -36,7 +39,7 @@ export interface UpdateLoss {
   updateRms: number;
   /** log2(update rms / weight rms): how far below its weight a typical update is */
   relativeLog2: number;
-  /** lost share under the plan as written (into the master copy if there is one, else into the stored weights) */
+  /** share of the update's squared norm lost under the plan as written (into the master copy if there is one, else into the stored weights) */
   planned: number;
   /** lost share when updating the stored weights directly, with no master copy */
   withoutMaster: number;
@@ -84,7 +87,7 @@ export interface OptimizerCheck {
   stateFormat: FormatName;
   epsilon: { value: number; stored: number; vanishes: boolean } | null;
   tensors: WeightOptimizerCheck[];
-  /** the worst lost share under the plan, where it happens */
+  /** the worst share of the update's squared norm lost under the plan, where it happens */
   worst: { weight: string; at: SchedulePoint; lostShare: number } | null;
   /** the worst of the findings in the formats judged (every format unless the caller names them) */
   verdict: OptimizerVerdict;
@@ -98,12 +101,16 @@ export interface OptimizerCheck {
 }
 
 /**
- * Thresholds (documented in README.md): a weight tensor whose updates are lost for more than 1% of its
- * elements at some point of the schedule is at risk; more than half lost at the peak learning rate fails
- * (training barely moves those weights). Flushed second moments are graded by the risk thresholds' flushed shares
+ * Thresholds (documented in README.md): a weight tensor whose update loses more than 1e-4 of its squared norm at some
+ * point of the schedule is at risk; more than 1e-2 at the peak learning rate fails. A lost update is a zero gradient for
+ * that weight in that step, so these are the flushed-gradient-energy limits (DEFAULT_THRESHOLDS energyAtRisk and
+ * energyFails). The share of elements, the earlier measure, flagged a binary32 master copy taking updates 2^-18 of its
+ * weights: 1.6% of a Gaussian update's elements fall below half an ulp, but they carry ~1e-6 of its energy. Decay steps
+ * are one fixed fraction of every weight, the same each step (a weight whose decay is lost never decays): they keep the
+ * share of weights, at risk above 1%. Flushed second moments are graded by the risk thresholds' flushed shares
  * (`flushedAtRisk`, `flushedFails`), as their hazard is.
  */
-export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 0.01, lostFails: 0.5 } as const;
+export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 1e-4, lostFails: 1e-2, decayLostAtRisk: 0.01 } as const;
 
 /**
  * Steps of stochastic rounding until the rounding noise of the summed update falls below 10% of it.
@@ -254,7 +261,7 @@ function gradientClip(optimizer: OptimizerSpec, pairs: readonly { gradient: Tens
  * them), so the optimizer and the `optimizer-second-moment` hazard give one severity.
  * `judged`: the formats whose findings count in `verdict` (as `check` passes the planned formats it judged); a
  * finding in another format is still told, and its reason says it does not count. Default: every format.
- * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of updates lost, e.g. 0.93
+ * @example checkOptimizer(optimizer, plan, prediction).worst?.lostShare // => share of the update's squared norm lost, e.g. 0.93
  */
 export function checkOptimizer(
   optimizer: OptimizerSpec,
@@ -510,8 +517,8 @@ function summarise(
         u === null
           ? null
           : less(updates, u.planned)
-            ? `${pct(updates)} of the updates lost instead of ${pct(u.planned)}`
-            : `${pct(updates)} of the updates still lost`,
+            ? `${pct(updates)} of the update's squared norm lost instead of ${pct(u.planned)}`
+            : `${pct(updates)} of the update's squared norm still lost`,
         decayLoss === null
           ? null
           : less(decaySteps, decayLoss.lost)
@@ -541,7 +548,7 @@ function summarise(
       ? `compensated (Kahan) summation into ${into}: ${effect(compensated.updates, compensated.decaySteps)} (+${updateFormat.bytes} bytes per parameter for the compensation buffer)`
       : null;
     // it comes before stochastic rounding when it brings the lost share within the tolerated one
-    const kahanFirst = compensated.updates <= OPTIMIZER_THRESHOLDS.lostAtRisk && !(decayLoss !== null && compensated.decaySteps > OPTIMIZER_THRESHOLDS.lostAtRisk);
+    const kahanFirst = compensated.updates <= OPTIMIZER_THRESHOLDS.lostAtRisk && !(decayLoss !== null && compensated.decaySteps > OPTIMIZER_THRESHOLDS.decayLostAtRisk);
     if (kahan !== null && kahanFirst) found.push(kahan);
     // stochastic rounding (Gupta et al. 2015) rounds up with probability equal to the remainder: unbiased, so
     // an update below half an ulp still moves the weight in expectation
@@ -573,12 +580,12 @@ function summarise(
       ? ` The gradients are clipped there: clip-norm ${plainNumber(optimizer.clipNorm as number)} against a predicted global norm of ${plainNumber(lostUpdate.clipped.globalNorm)} scales them by ${plainNumber(lostUpdate.clipped.factor)}.`
       : "";
     reasons.push(
-      `${sentenceStart(pct(worst.lostShare))} of the updates to ${worst.weight} are lost against half an ulp of ${into} at the ${worst.at} learning rate.${clipped}${uncounted}`,
+      `The updates to ${worst.weight} lose ${pct(worst.lostShare)} of their squared norm against half an ulp of ${into} at the ${worst.at} learning rate.${clipped}${uncounted}`,
     );
   }
   const decayAt = decayRate(optimizer);
   const decayRatio = decayAt.lr * optimizer.weightDecay;
-  const decayFinding = decay > OPTIMIZER_THRESHOLDS.lostAtRisk;
+  const decayFinding = decay > OPTIMIZER_THRESHOLDS.decayLostAtRisk;
   if (decayFinding) {
     const uncounted = raise("at-risk", updateFormat);
     reasons.push(

@@ -6,15 +6,20 @@
  * Swamping (SCIENCE.md §1.1 [X]; Micikevicius et al. 2018 §3.1): w + Δ == w under round-to-nearest-even
  * whenever |Δ| < ½·ulp(w). For w in [2^e, 2^(e+1)) in a format of precision p, ulp(w) = 2^(e−p+1), so the
  * update is lost when |Δ| < 2^(e−p); below the smallest normal the spacing is that of the subnormals.
+ *
+ * What is summed is the share of the update's squared norm that is lost, not the share of its elements: the elements
+ * lost are the smallest, and a lost update is a zero gradient for that weight in that step, which the check weighs by
+ * its energy as it weighs flushed gradients (the gradient-energy rule of src/risk/catalogue.ts). A Gaussian update of
+ * rms 2^5.7 half-ulps loses 1.6% of its elements but ~1e-6 of its energy; one at or below half an ulp loses both.
  */
 import type { Format } from "../formats/index.js";
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { elementLaw, fractionBelow, nonzeroElements } from "../risk/index.js";
+import { elementLaw, energyBelow, fractionBelow, nonzeroElements } from "../risk/index.js";
 
 /** What the swamping sum needs of a format: its precision p and the exponent of its smallest normal. */
 export type SwampingFormat = Pick<Format, "precision" | "emin">;
 
-/** P(|Δ| < 2^k) by integer exponent k. */
+/** The update's share (of its squared norm) below 2^k, by integer exponent k. */
 interface SharesByExponent {
   at(k: number): number;
 }
@@ -34,6 +39,21 @@ export function shareBelow(profile: MagnitudeProfile): (t: number) => number {
   }
   const law = elementLaw(profile);
   return (t) => law.below(r, t);
+}
+
+/**
+ * `energyBelow(profile, ·)`, the share of the squared norm carried by elements with |Δ| ≤ t, specialised once per
+ * profile as {@link shareBelow} is (constant-like elements: the step at the rms, their energy share equals their count).
+ */
+export function energyShareBelow(profile: MagnitudeProfile): (t: number) => number {
+  if (profile.log2Spread > 0) return (t) => energyBelow(profile, t);
+  if (!(profile.rms > 0) || !(nonzeroElements(profile) > 0)) return () => 0;
+  const r = profile.rms;
+  if (profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0))) {
+    return (t) => (r <= t ? 1 : 0);
+  }
+  const law = elementLaw(profile);
+  return (t) => law.energyBelow(r, t);
 }
 
 // Binades summed: 40 below the weight's rms binade (lighter than any share we report) to 12 above it.
@@ -65,7 +85,7 @@ function weightBinades(weight: MagnitudeProfile): WeightBinades {
 }
 
 /**
- * P(|Δ| < 2^k) of one update profile by integer exponent k, each computed on first use: the formats that
+ * The share of the update's squared norm with |Δ| < 2^k, by integer exponent k, each computed on first use: the formats that
  * receive the update read thresholds 2^(e−p) that coincide up to a shift by the precision.
  */
 class UpdateShares implements SharesByExponent {
@@ -179,7 +199,7 @@ const weightEntry = (weight: MagnitudeProfile): WeightEntry =>
   entryOf(WEIGHTS, weight, weight.zeroFraction, (law) => ({ law, binades: law.rms > 0 ? weightBinades(law) : null }));
 
 const updateEntry = (update: MagnitudeProfile): UpdateEntry =>
-  entryOf(UPDATES, update, 0, (law) => ({ law, shares: new UpdateShares(shareBelow(law)), sums: new Map() }));
+  entryOf(UPDATES, update, 0, (law) => ({ law, shares: new UpdateShares(energyShareBelow(law)), sums: new Map() }));
 
 /**
  * The swamping sums of one assessment against a fixed list of formats. Weights of equal laws (the layers of one
@@ -196,7 +216,7 @@ export class SwampingSums {
     this.first = formats.map((format) => formats.findIndex((f) => f.precision === format.precision && f.emin === format.emin));
   }
 
-  /** The share of `update` lost against `weight`, one per format, in the order given to the constructor. */
+  /** The share of `update`'s squared norm lost against `weight`, one per format, in the order given to the constructor. */
   lost(weight: MagnitudeProfile, update: MagnitudeProfile): Float64Array {
     const w = weightEntry(weight);
     const u = updateEntry(update);
@@ -241,9 +261,10 @@ export class SwampingSums {
 }
 
 /**
- * Share of updates lost when adding them to weights stored in `format`, with the update's shares below powers
- * of two read from `shares`: Σ over the weight's binades of P(|w| in [2^e, 2^(e+1))) · P(|Δ| < 2^(e−p))
- * (SCIENCE.md §1.1), zero weights charged P(|Δ| < half the smallest subnormal).
+ * Share lost when adding updates to weights stored in `format`, with the update's shares below powers of two read
+ * from `shares`: Σ over the weight's binades of P(|w| in [2^e, 2^(e+1))) · share(|Δ| < 2^(e−p)) (SCIENCE.md §1.1; Δ
+ * independent of w, so the energy lost is this mixture too), zero weights charged the share below half the smallest
+ * subnormal.
  */
 function sumLost(weight: MagnitudeProfile, binades: WeightBinades | null, shares: SharesByExponent, format: SwampingFormat): number {
   const p = format.precision;
@@ -265,9 +286,9 @@ function sumLost(weight: MagnitudeProfile, binades: WeightBinades | null, shares
 }
 
 /**
- * Share of updates lost when adding updates to weights stored in a format of precision `precision`.
- * `weight` describes the stored weights; `updateBelow(t)` is the share of update elements with |Δ| < t
- * (see {@link SwampingSums}).
+ * Share lost when adding updates to weights stored in a format of precision `precision`. `weight` describes the
+ * stored weights; `updateBelow(t)` is the update's share with |Δ| < t: of its elements (fractionBelow) for the share of
+ * updates lost, of its squared norm (energyBelow) for the energy lost, which {@link SwampingSums} sums.
  */
 export function swampedShare(weight: MagnitudeProfile, updateBelow: (t: number) => number, format: SwampingFormat): number {
   const binades = weight.rms > 0 ? weightBinades(weight) : null;

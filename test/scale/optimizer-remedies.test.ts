@@ -78,13 +78,13 @@ describe("checkOptimizer remedies when the plan already keeps a binary32 master 
   it("names the loss against the master copy", () => {
     expect(result.verdict).toBe("fails");
     expect(result.reasons).toEqual([
-      "100% of the updates to dense-0/weight are lost against half an ulp of the binary32 master copy at the peak learning rate.",
+      "The updates to dense-0/weight lose 100% of their squared norm against half an ulp of the binary32 master copy at the peak learning rate.",
     ]);
   });
 
   it("proposes compensated summation and stochastic rounding with their computed effects, not the master copy it has", () => {
     expect(result.remedies).toEqual([
-      "compensated (Kahan) summation into the binary32 master copy: 0% of the updates lost instead of 100% (+4 bytes per parameter for the compensation buffer)",
+      "compensated (Kahan) summation into the binary32 master copy: 0% of the update's squared norm lost instead of 100% (+4 bytes per parameter for the compensation buffer)",
       // stochastic rounding is unbiased (Gupta et al. 2015); with q = 2^-30 / 2^-23 = 2^-7 of an ulp the binomial
       // noise falls below 10% after 100·(1 − q)/q = 12700 steps (common practice)
       "round the weight update stochastically into the binary32 master copy: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 12700 steps (no extra memory)",
@@ -97,7 +97,7 @@ describe("checkOptimizer remedies when the plan already keeps a binary32 master 
     // 2^-50 is below 2^-48 too: compensated summation keeps nothing, so only stochastic rounding remains;
     // q = 2^-50 / 2^-23 = 2^-27: 100·(2^27 − 1) ≈ 1.34e10 steps
     const tiny = checkOptimizer(adam(2 ** -50), plan("binary16", "binary32"), prediction());
-    expect(tiny.reasons[0]).toMatch(/^100% of the updates/);
+    expect(tiny.reasons[0]).toMatch(/^The updates to dense-0\/weight lose 100% of their squared norm/);
     expect(tiny.remedies).toHaveLength(1);
     expect(tiny.remedies[0]).toMatch(/^round the weight update stochastically into the binary32 master copy: nothing lost in expectation; the rounding noise of dense-0\/weight averages below 10% after about 1\.34e10 steps \(no extra memory\)$/);
   });
@@ -116,7 +116,7 @@ describe("checkOptimizer remedies when the plan already keeps a binary32 master 
   it("with stored binary32 weights and no master copy, does not propose a binary32 master copy", () => {
     const single = checkOptimizer(adam(2 ** -30), plan("binary32", "none"), prediction());
     expect(single.remedies).toEqual([
-      "compensated (Kahan) summation into the stored binary32 weights: 0% of the updates lost instead of 100% (+4 bytes per parameter for the compensation buffer)",
+      "compensated (Kahan) summation into the stored binary32 weights: 0% of the update's squared norm lost instead of 100% (+4 bytes per parameter for the compensation buffer)",
       "round the weight update stochastically: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 12700 steps (no extra memory)",
     ]);
   });
@@ -128,12 +128,12 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
     // with compensated summation into bfloat16 (about 2p = 16 bits: 2^-16; Kahan 1965)
     const result = checkOptimizer(adam(2 ** -12), plan("binary16", "bfloat16"), prediction());
     expect(result.reasons[0]).toBe(
-      "100% of the updates to dense-0/weight are lost against half an ulp of the bfloat16 master copy at the peak learning rate.",
+      "The updates to dense-0/weight lose 100% of their squared norm against half an ulp of the bfloat16 master copy at the peak learning rate.",
     );
     expect(result.remedies).toEqual([
       // bfloat16 takes 2 bytes, binary32 4: 2 more per parameter
-      "a binary32 master copy instead of bfloat16: 0% of the updates lost instead of 100% (+2 bytes per parameter)",
-      "compensated (Kahan) summation into the bfloat16 master copy: 0% of the updates lost instead of 100% (+2 bytes per parameter for the compensation buffer)",
+      "a binary32 master copy instead of bfloat16: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)",
+      "compensated (Kahan) summation into the bfloat16 master copy: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter for the compensation buffer)",
       // q = 2^-12 / 2^-7 = 2^-5: 100·31 = 3100 steps (binomial counting; Gupta et al. 2015 for the rounding)
       "round the weight update stochastically into the bfloat16 master copy: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 3100 steps (no extra memory)",
     ]);
@@ -142,7 +142,7 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
   it("a binary16 master copy of e4m3 weights: a binary32 one instead", () => {
     // binary16 p = 11 (IEEE 754-2019): half an ulp of 1.0 is 2^-11; lr 2^-14 is lost, kept in binary32
     const result = checkOptimizer(adam(2 ** -14), plan("e4m3", "binary16"), prediction());
-    expect(result.remedies[0]).toBe("a binary32 master copy instead of binary16: 0% of the updates lost instead of 100% (+2 bytes per parameter)");
+    expect(result.remedies[0]).toBe("a binary32 master copy instead of binary16: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)");
     // q = 2^-14 / 2^-10 = 1/16: 100·15 = 1500 steps
     expect(result.remedies).toContain(
       "round the weight update stochastically into the binary16 master copy: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 1500 steps (no extra memory)",
@@ -151,7 +151,7 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
 
   it("no master copy of binary16 weights: keep a binary32 one", () => {
     const result = checkOptimizer(adam(2 ** -14), plan("binary16", "none"), prediction());
-    expect(result.remedies[0]).toBe("keep a binary32 master copy of the weights: 0% of the updates lost instead of 100% (+4 bytes per parameter)");
+    expect(result.remedies[0]).toBe("keep a binary32 master copy of the weights: 0% of the update's squared norm lost instead of 100% (+4 bytes per parameter)");
   });
 });
 
@@ -216,7 +216,7 @@ describe("no remedy repeats the plan", () => {
   it("catches the sentences this suite exists to prevent", () => {
     const p = plan("binary16", "binary32");
     expect(repeatsPlan("a binary32 master copy instead of binary32: 1.12% lost", p)).not.toBeNull();
-    expect(repeatsPlan("compensated (Kahan) summation into the stored weights: 100% of the updates lost instead of 100% (+2 bytes)", p)).not.toBeNull();
+    expect(repeatsPlan("compensated (Kahan) summation into the stored weights: 100% of the update's squared norm lost instead of 100% (+2 bytes)", p)).not.toBeNull();
     expect(repeatsPlan("hold the optimizer states in binary32 (+ their size again in bytes)", p)).not.toBeNull();
   });
 
@@ -258,7 +258,7 @@ describe("checkOptimizer words a share short of all", () => {
     const lost = result.tensors[0]!.updates[0]!.planned;
     expect(1 - lost).toBeCloseTo(2 ** -14 * Math.sqrt(2 / Math.PI), 5);
     expect(lost).toBeLessThan(1);
-    expect(result.reasons[0]).toMatch(/^More than 99\.9% of the updates to dense-0\/weight are lost/);
+    expect(result.reasons[0]).toMatch(/^The updates to dense-0\/weight lose more than 99\.9% of their squared norm/);
     expect(result.remedies.join(" ")).toContain("lost instead of more than 99.9%");
   });
 });

@@ -2,16 +2,17 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { FORMAT_NAMES, getFormat } from "../../src/formats/index.js";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
-import { fractionBelow } from "../../src/risk/index.js";
+import { energyBelow, fractionBelow } from "../../src/risk/index.js";
 import { lawOf, SwampingSums, type SwampingFormat } from "../../src/scale/swamping.js";
 
 /**
- * The swamping sum written plainly, as the optimizer check had it before the shared tables: Σ over the weight's
- * binades of P(|w| in [2^e, 2^(e+1))) · P(|Δ| < 2^(e−p)), every share a fresh fractionBelow call (SCIENCE.md
- * §1.1 [X]; Micikevicius et al. 2018 §3.1: the update is lost when |Δ| < ½·ulp(w), ulp(w) = 2^(e−p+1)).
+ * The swamping sum written plainly: Σ over the weight's binades of P(|w| in [2^e, 2^(e+1))) · E[Δ²; |Δ| < 2^(e−p)]/E[Δ²],
+ * the share of the update's squared norm lost, every share a fresh fractionBelow (weights) or energyBelow (update)
+ * call (SCIENCE.md §1.1 [X]; Micikevicius et al. 2018 §3.1: the update is lost when |Δ| < ½·ulp(w), ulp(w) = 2^(e−p+1);
+ * Δ independent of w, so the energy lost is this mixture).
  */
 function referenceSwampedShare(weight: MagnitudeProfile, update: MagnitudeProfile, format: SwampingFormat): number {
-  const updateBelow = (t: number) => fractionBelow(update, t);
+  const updateBelow = (t: number) => energyBelow(update, t);
   const p = format.precision;
   const subnormalHalfSpacing = 2 ** (format.emin - p);
   const zeros = weight.zeroFraction;
@@ -121,7 +122,7 @@ describe("SwampingSums (the optimizer check's swamping sums over shared tables)"
     );
   });
 
-  // the tables are shared by law (lawOf): this holds only while fractionBelow reads nothing else of a profile
+  // the tables are shared by law (lawOf): this holds only while fractionBelow and energyBelow read nothing else of a profile
   it("shares tables only between profiles whose shares below every threshold are equal", () => {
     fc.assert(
       fc.property(
@@ -133,6 +134,9 @@ describe("SwampingSums (the optimizer check's swamping sums over shared tables)"
           const share = fractionBelow(profile, t);
           expect(fractionBelow(lawOf(profile), t)).toBe(share);
           expect(fractionBelow({ ...profile, ...extra, coherentRms: 2 * profile.rms }, t)).toBe(share);
+          const energy = energyBelow(profile, t);
+          expect(energyBelow(lawOf(profile), t)).toBe(energy);
+          expect(energyBelow({ ...profile, ...extra, coherentRms: 2 * profile.rms }, t)).toBe(energy);
         },
       ),
       { numRuns: 400 },
