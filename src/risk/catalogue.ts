@@ -116,7 +116,8 @@ export const FINDING_INFO = {
       "A layer-norm, rms-norm or batch-norm sums the squares of N features; the sum overflows once the rms " +
       "of the input exceeds √(max/N) (4.0 for N = 4096 in binary16). Fails when the sum is held in the " +
       "plan's accumulate format; at risk when only the activation format would overflow (an implementation " +
-      "that does not widen the statistics). Remedy: compute norm statistics in binary32.",
+      "that does not widen the statistics). In an 8-bit format with scale factors the sums take their own scale, as the " +
+      "plan's other 8-bit tensors do. Remedy: compute norm statistics in binary32.",
   },
   "accumulation-error": {
     title: "Accumulation error",
@@ -154,7 +155,8 @@ export const FINDING_INFO = {
     short: "flush gradients divided by the worker count",
     description:
       "Dividing each worker's gradient by the worker count before the sum moves small gradients below the " +
-      "flush bound. Judged by the flushed gradient energy, as for gradient tensors.",
+      "flush bound. Judged by the flushed gradient energy, as for gradient tensors. In an 8-bit format with scale factors " +
+      "the scale moves with the division (exactly for a power of two), so little or nothing more flushes.",
   },
   "optimizer-epsilon-flushed": {
     title: "Optimizer epsilon flushed",

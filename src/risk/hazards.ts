@@ -458,28 +458,55 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
 // (DESIGN.md §5 item 7: 4.0 at N = 4096 in binary16). Rows are independent; the scale spreads over draws.
 // The result is held in the activation format and the accumulate format (once when they are one format); only
 // an implementation that does not widen keeps it in the activation format, so that case is at most at risk.
+// In an 8-bit format of a plan with scale factors the sums are stored as its other 8-bit tensors are (as the loss value
+// below): per-tensor, with a scale 2^⌊log2(max finite / M)⌋ set from the level M the largest sum passes once in
+// 1/maxQuantile steps (perTensorScaleLog2), so they pass the format's level only as often as the scale rule allows;
+// per-block, each block's shared exponent follows its own largest sum and only a scale past E8M0's 2^127 leaves the
+// range (OCP MX v1.0 §6, from memory; src/risk/blocks.ts).
 function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const law = elementLaw(profile);
   const features = Math.max(1, site.terms * (1 - profile.zeroFraction));
   const rows = Math.max(1, profile.elements / Math.max(1, site.terms));
   const t = context.thresholds;
   const first = context.activations.format === context.accumulate.format ? 1 : 0;
+  // P(any row's sum reaches `level`) in one step, over draws
+  const anyAbove = (level: number): number =>
+    profile.rms > 0
+      ? overDraws(profile.rms, profile.log2Spread, (r) => {
+          const mean = features * r * r;
+          const sd = Math.sqrt(features * Math.max(0, law.kurtosis - 1)) * r * r;
+          const perRow = sd > 0 ? normalSf((level - mean) / sd) : mean >= level ? 1 : 0;
+          return anyOf(perRow, rows);
+        })
+      : 0;
   for (let k = first; k < 2; k++) {
     const limits = k === 0 ? context.activations : context.accumulate;
-    const level = limits.overflowLevel;
+    const scaling = FORMATS[limits.format].bits === 8 ? (context.scaling ?? "none") : "none";
+    let level = limits.overflowLevel;
+    if (scaling === "block") level = blockScaledRiskCached(FORMATS[limits.format]).scaleClampLevel;
+    else if (scaling === "tensor" && profile.rms > 0) level = limits.overflowLevel * 2 ** -perTensorScaleLog2(levelPassed(anyAbove, features * profile.rms * profile.rms, t.maxQuantile), limits.maxFinite);
     const criticalRms = Math.sqrt(level / features);
-    const value =
-      profile.rms > 0
-        ? overDraws(profile.rms, profile.log2Spread, (r) => {
-            const mean = features * r * r;
-            const sd = Math.sqrt(features * Math.max(0, law.kurtosis - 1)) * r * r;
-            const perRow = sd > 0 ? normalSf((level - mean) / sd) : mean >= level ? 1 : 0;
-            return anyOf(perRow, rows);
-          })
-        : 0;
+    const value = anyAbove(level);
+    const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
     putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", value, criticalRms,
-      t.overflowAtRisk, t.overflowFails, k === 0, NORM_SUM, profile.rms, k === 0);
+      atRisk, t.overflowFails, k === 0, NORM_SUM, profile.rms, k === 0);
   }
+}
+
+// The level a decreasing probability of passing it, `anyAbove`, takes the value `p` at: bisection on log2 of the level
+// from a bracket grown in steps of 8 binades around `start` (60 halvings: within 2^-40 of a binade, far below the
+// whole binades a scale factor moves by).
+function levelPassed(anyAbove: (level: number) => number, start: number, p: number): number {
+  let low = Math.log2(start);
+  let high = low;
+  for (let i = 0; i < 64 && anyAbove(2 ** low) < p; i++) low -= 8;
+  for (let i = 0; i < 64 && anyAbove(2 ** high) >= p; i++) high += 8;
+  for (let i = 0; i < 60; i++) {
+    const middle = (low + high) / 2;
+    if (anyAbove(2 ** middle) >= p) low = middle;
+    else high = middle;
+  }
+  return 2 ** high;
 }
 
 // Rounding error of an n-term sum in a format with unit roundoff u: about √n·u for terms of random sign
@@ -555,19 +582,43 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
 // gives one, otherwise `terms` times one contribution (coherent parts add linearly: the worst case). When
 // gradients are averaged, an implementation that divides each worker's gradient by the worker count before
 // the sum moves small values down by that factor instead (DESIGN.md §5 item 9); that is judged as a risk only.
+// In an 8-bit gradient format with scale factors the sum and each worker's share are stored as the plan's other 8-bit
+// tensors are (the tensor rule, src/risk/tensor.ts, and the block rule, src/risk/blocks.ts): a per-tensor scale set from
+// the tensor's own predicted max, or per-block scales following each block's maximum. A division by the worker count
+// then moves the scale with the values (exactly for a power of two; within the binade the scale is floored to otherwise)
+// instead of pushing them under the flush bound, and the sum overflows only as often as the scale rule clips.
 function gradientSum(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
   const limits = context.gradients;
   const t = context.thresholds;
   const terms = Math.max(1, site.terms);
+  const format = FORMATS[limits.format];
+  const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
+  const block = scaling === "block" ? blockScaledRiskCached(format) : null;
   const summed = output !== undefined ? scaledProfile(output, context.lossScale) : scaledProfile(input, context.lossScale * terms);
-  const overflow = probabilityAnyAbove(summed, limits.overflowLevel);
-  putGraded(list, limits, "gradients", "overflow-risk", "gradient-sum-overflow", overflow, limits.overflowLevel / context.lossScale,
-    t.overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
+  // the level the summed gradients overflow from, in their own units (before any scale factor)
+  const level =
+    block !== null
+      ? block.scaleClampLevel
+      : scaling === "tensor"
+        ? limits.overflowLevel * 2 ** -perTensorScaleLog2(profileStatistics(summed, t).max, limits.maxFinite)
+        : limits.overflowLevel;
+  const overflow = probabilityAnyAbove(summed, level);
+  putGraded(list, limits, "gradients", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
+    overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates), t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
   if (context.workerGradients === "average" && context.workers > 1) {
     const scaled = scaledProfile(input, context.lossScale);
     const divided = scaledProfile(scaled, 1 / context.workers);
-    const lost = Math.max(0, energyBelow(divided, limits.flushBound) - energyBelow(scaled, limits.flushBound));
-    putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, limits.flushBound * context.workers,
+    // the flush level in each profile's own units: the bound, moved by the profile's own per-tensor scale; under block
+    // scales, the floor of a scale clamped at 2^-127 (a block's own flushing does not move with a common factor)
+    const flushLevel = (profile: MagnitudeProfile): number =>
+      block !== null
+        ? block.smallestScale * limits.flushBound
+        : scaling === "tensor"
+          ? limits.flushBound * 2 ** -perTensorScaleLog2(profileStatistics(profile, t).max, limits.maxFinite)
+          : limits.flushBound;
+    const dividedLevel = flushLevel(divided);
+    const lost = Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled)));
+    putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
 }

@@ -1,6 +1,7 @@
 import { describe, expect, it } from "vitest";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
+import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, rangeLimits, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
+import { getFormat } from "../../src/formats/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING } from "./limits.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
@@ -510,5 +511,66 @@ describe("one layout for every result", () => {
     const forward = sites.map((s) => JSON.stringify(evaluateHazard(s, plans[1]!)));
     const reversed = [...sites].reverse().map((s) => JSON.stringify(evaluateHazard(s, plans[1]!))).reverse();
     expect(reversed).toEqual(forward);
+  });
+});
+
+describe("hazards of 8-bit formats with scale factors: the scale moves with the values", () => {
+  // e5m2: smallest subnormal 2^-16, largest finite 57344 (OCP 8-bit floating point specification rev. 1.0, E5M2)
+  const E5M2 = rangeLimits(getFormat("e5m2"), { saturate: true, flushSubnormals: false });
+  it("the e5m2 limits are the OCP specification's", () => {
+    expect(E5M2.smallest).toBe(2 ** -16);
+    expect(E5M2.maxFinite).toBe(57344);
+  });
+
+  const small = site({ kind: "gradient-sum", terms: 4, input: profile({ rms: 2 ** -14, elements: 1e6 }) });
+  const flushOf = (scaling: HazardContext["scaling"], workers = 4) =>
+    evaluateHazard(small, context({ gradients: E5M2, workers, workerGradients: "average", scaling })).evaluations.find((e) => e.measure === "flushed-energy")!;
+
+  it("without scale factors, dividing gradients of rms 2^-14 by 4 before the sum flushes more of them in e5m2 (at risk)", () => {
+    expect(flushOf("none").verdict).toBe("at-risk");
+  });
+
+  it("a per-tensor scale absorbs a division by 4, a power of two: nothing more flushes", () => {
+    // the scale 2^⌊log2(max finite/amax)⌋ (Micikevicius et al. 2022 per-tensor scaling; SCIENCE.md §3.4) of the divided
+    // tensor is 4 times the undivided one's, so the scaled elements are the same numbers
+    expect(flushOf("tensor").value).toBe(0);
+    expect(flushOf("tensor").verdict).toBe("fits");
+  });
+
+  it("per-block scales follow each block's maximum, so a division by any worker count changes nothing", () => {
+    // each block of 32 takes its own shared exponent (OCP MX v1.0 §6, from memory); far from E8M0's 2^-127 floor
+    for (const workers of [3, 4, 64]) {
+      // only the energy below the floor of a scale clamped at 2^-127 remains: 2^-127·2^-17 against an rms of 2^-14/3
+      expect(flushOf("block", workers).value).toBeLessThan(1e-100);
+      expect(flushOf("block", workers).verdict).toBe("fits");
+    }
+  });
+
+  it("a per-tensor scale absorbs a division by 3 to within the binade it floors to: less lost than unscaled", () => {
+    expect(flushOf("tensor", 3).value).toBeLessThan(flushOf("none", 3).value);
+  });
+
+  it("the summed gradients overflow e5m2 with a per-tensor scale only as often as the scale rule clips", () => {
+    const large = site({ kind: "gradient-sum", terms: 64, input: profile({ shape: "constant", rms: 2000, elements: 10 }) });
+    // 64 × 2000 = 128000 > 57344: past e5m2's range unscaled; a scale of 2^⌊log2(57344/128000)⌋ = 2^-2 brings it to 32000
+    const unscaled = evaluateHazard(large, context({ gradients: E5M2, workers: 64 })).evaluations[0]!;
+    const scaled = evaluateHazard(large, context({ gradients: E5M2, workers: 64, scaling: "tensor" })).evaluations[0]!;
+    expect(unscaled.verdict).toBe("fails");
+    expect(scaled.value).toBe(0);
+    expect(scaled.verdict).toBe("fits");
+  });
+
+  it("a norm's sum of squares kept in e4m3 with a per-tensor or per-block scale does not overflow at rms 1.35 over 512 features", () => {
+    // unscaled it passes 448 (OCP E4M3 largest finite) once rms > √(448/512) = 0.935; scaled, the sums (about
+    // 512·1.35² = 933) take the scale 2^⌊log2(448/max)⌋ = 2^-2 or less, and pass the format's level no more often than
+    // the rule's own quantile (1e-3 per step)
+    const norm = site({ kind: "norm-sum-of-squares", terms: 512, input: profile({ rms: 1.35, elements: 512 * 256 }) });
+    const held = (scaling: HazardContext["scaling"]) => evaluateHazard(norm, context({ activations: E4M3_SATURATING, scaling })).evaluations[0]!;
+    expect(held("none").criticalLevel).toBeCloseTo(Math.sqrt(448 / 512), 12);
+    expect(held("none").verdict).toBe("at-risk");
+    expect(held("tensor").value).toBeLessThanOrEqual(DEFAULT_THRESHOLDS.maxQuantile);
+    expect(held("tensor").verdict).toBe("fits");
+    expect(held("block").value).toBe(0);
+    expect(held("block").verdict).toBe("fits");
   });
 });
