@@ -185,7 +185,17 @@ export function planFor(plan: PrecisionPlan, format: FormatName): PrecisionPlan 
   const replaced: readonly PlanEntry[] = reduced.length > 0 ? reduced : ["activations", "weights", "gradients"];
   const result: PrecisionPlan = { ...plan };
   for (const entry of replaced) result[entry] = format;
+  // scale factors apply to 8-bit formats only, so a plan that holds none has made no choice about them: an 8-bit format
+  // put in its place takes the default of a spec that names one (per-tensor, src/spec/normalize.ts), as the same plan
+  // written with that format would
+  if (FORMATS[format].bits === 8 && plan.scaling === "none" && !holdsEightBit(plan)) result.scaling = "tensor";
   return result;
+}
+
+// whether any role of the plan (the master copy too) is held in an 8-bit format, as the spec's scaling default reads it
+function holdsEightBit(plan: PrecisionPlan): boolean {
+  const roles = [plan.activations, plan.weights, plan.gradients, plan.optimizerStates, plan.masterWeights];
+  return roles.some((role) => role !== "none" && FORMATS[role].bits === 8);
 }
 
 /** The formats a plan uses, in plan-entry order, each once. */

@@ -39,16 +39,21 @@ function numbers(risk: TensorCheckRisk): unknown {
 }
 
 const spec = load("specs/deep-relu-he.yaml");
+// the plan written in e4m3 without scale factors: an 8-bit format put in its place keeps that choice, so e5m2 and e4m3
+// gradients need a loss scale of their own (a binary16 plan makes no choice about 8-bit scale factors: see "what-if
+// 8-bit formats take the spec's default scale factors" below)
+const unscaled: NetworkSpec = { ...spec, precision: { ...spec.precision, activations: "e4m3", weights: "e4m3", gradients: "e4m3", scaling: "none" } };
 
-describe("check --format e5m2 on a binary16 plan with no loss scale", () => {
+describe("check --format e5m2 on a plan without scale factors and with no loss scale", () => {
   const plain = check(spec);
-  const e5m2 = check(spec, { formats: ["e5m2"] });
+  const e5m2 = check(unscaled, { formats: ["e5m2"] });
   const plainWindow = plain.lossScaleAnswer!.window;
   const window = e5m2.lossScaleAnswer!.window;
 
-  it("answers the loss scale for e5m2 gradients, not the plan's binary16 ones", () => {
-    expect(spec.precision.gradients).toBe("binary16");
-    expect(planFor(spec.precision, "e5m2").gradients).toBe("e5m2");
+  it("answers the loss scale for e5m2 gradients, not the plan's e4m3 ones", () => {
+    expect(unscaled.precision.gradients).toBe("e4m3");
+    expect(planFor(unscaled.precision, "e5m2").gradients).toBe("e5m2");
+    expect(planFor(unscaled.precision, "e5m2").scaling).toBe("none");
     expect(e5m2.lossScaleAnswer?.format).toBe("e5m2");
     expect(e5m2.moreLossScaleAnswers).toBeUndefined();
     expect(e5m2.lossScale.origin).toBe("recommended");
@@ -129,14 +134,14 @@ describe("what-if formats whose gradients need no loss scale", () => {
 
 describe("two what-if formats at once", () => {
   const alone = {
-    e5m2: check(spec, { formats: ["e5m2"] }),
-    bfloat16: check(spec, { formats: ["bfloat16"] }),
-    e4m3: check(spec, { formats: ["e4m3"] }),
+    e5m2: check(unscaled, { formats: ["e5m2"] }),
+    bfloat16: check(unscaled, { formats: ["bfloat16"] }),
+    e4m3: check(unscaled, { formats: ["e4m3"] }),
   };
 
   it("e5m2 and bfloat16: each judged at its own scale, with the numbers of each judged alone, in either order", () => {
     for (const order of [["e5m2", "bfloat16"], ["bfloat16", "e5m2"]] as const) {
-      const both = check(spec, { formats: [...order] });
+      const both = check(unscaled, { formats: [...order] });
       const first = alone[order[0]];
       // the result's loss scale is the first format's; the other gives its own
       expect(both.lossScale).toEqual(first.lossScale);
@@ -161,7 +166,7 @@ describe("two what-if formats at once", () => {
   });
 
   it("e5m2 and e4m3: one window per gradient format, each applied to its own format", () => {
-    const both = check(spec, { formats: ["e5m2", "e4m3"] });
+    const both = check(unscaled, { formats: ["e5m2", "e4m3"] });
     const answers = [both.lossScaleAnswer, ...(both.moreLossScaleAnswers ?? [])];
     expect(answers.map((a) => a?.format)).toEqual(["e5m2", "e4m3"]);
     expect(answers[1]?.window).toEqual(alone.e4m3.lossScaleAnswer?.window);
@@ -204,5 +209,39 @@ describe("the plan as written", () => {
     expect(result.formats.every((f) => !("lossScale" in f))).toBe(true);
     expect(result.tensors.every((t) => t.risks.every((r) => !("statistics" in r)))).toBe(true);
     expect(result.lossScaleAnswer?.format).toBe(spec.precision.gradients);
+  });
+});
+
+describe("what-if 8-bit formats take the spec's default scale factors", () => {
+  // a plan without 8-bit formats makes no choice about their scale factors (they apply to 8-bit formats only); the spec
+  // gives a plan naming one per-tensor factors by default (src/spec/normalize.ts, specs/README.md), so `--format e4m3`
+  // on a binary16 plan is judged as the same plan written in e4m3 is
+  const cnn = load("specs/cnn-batchnorm.yaml");
+  const written: NetworkSpec = { ...cnn, precision: { ...cnn.precision, activations: "e4m3", weights: "e4m3", gradients: "e4m3", scaling: "tensor" } };
+
+  it("the substituted plan has per-tensor scale factors, as the plan written with e4m3 gets them", () => {
+    expect(cnn.precision.scaling).toBe("none");
+    expect(planFor(cnn.precision, "e4m3").scaling).toBe("tensor");
+    const text = readFileSync("specs/cnn-batchnorm.yaml", "utf8").replace(/^ {2}(activations|weights|gradients): binary16$/gm, "  $1: e4m3");
+    const parsed = parseSpec(text, "cnn-e4m3.yaml");
+    if (!parsed.ok) throw new Error("the e4m3 variant does not parse");
+    expect(parsed.spec.precision.scaling).toBe("tensor");
+  });
+
+  it("the what-if e4m3 and the plan written in e4m3 give the same verdict and the same tensor numbers", () => {
+    const whatIf = check(cnn, { formats: ["e4m3"] });
+    const planned = check(written);
+    const e4m3 = (result: CheckAnswer) => result.formats.find((f) => f.format === "e4m3")!;
+    expect(e4m3(whatIf).verdict).toBe(e4m3(planned).verdict);
+    expect(e4m3(whatIf).findings.map((f) => f.sentence)).toEqual(e4m3(planned).findings.map((f) => f.sentence));
+    expect(whatIf.lossScaleAnswer).toBeNull();
+    const risks = (result: CheckAnswer) => result.tensors.map((t) => t.risks.filter((r) => r.format === "e4m3").map(numbers));
+    expect(risks(whatIf)).toEqual(risks(planned));
+  });
+
+  it("a plan that holds an 8-bit format keeps its own choice, none included", () => {
+    expect(planFor(unscaled.precision, "e5m2").scaling).toBe("none");
+    const blocks: NetworkSpec = { ...unscaled, precision: { ...unscaled.precision, scaling: "block" } };
+    expect(planFor(blocks.precision, "e5m2").scaling).toBe("block");
   });
 });

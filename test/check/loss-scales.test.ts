@@ -97,8 +97,11 @@ describe("CheckAnswer.lossScales", () => {
     ]);
   });
 
-  it("--format binary16,e5m2: two items, in the order of the formats, each with its own answer", () => {
-    const result = check(spec, { formats: ["binary16", "e5m2"] });
+  // a plan written in e4m3 without scale factors: what-if 8-bit formats keep that choice (a binary16 plan makes none)
+  const unscaled = withPlan({ activations: "e4m3", weights: "e4m3", gradients: "e4m3", scaling: "none" });
+
+  it("--format binary16,e5m2 on a plan without scale factors: two items, in the order of the formats, each with its own answer", () => {
+    const result = check(unscaled, { formats: ["binary16", "e5m2"] });
     expect(result.lossScales.map(shape)).toEqual([
       { format: "binary16", status: "window", answerFormat: "binary16" },
       { format: "e5m2", status: expect.stringMatching(/^(window|empty)$/), answerFormat: "e5m2" },
@@ -109,13 +112,21 @@ describe("CheckAnswer.lossScales", () => {
     expect(result.lossScales[1]!.status !== "not-needed" && result.lossScales[1]!.answer).toBe(result.moreLossScaleAnswers?.[0]);
   });
 
-  it("--format bfloat16,e5m2: a not-needed item first, then e5m2's answer, which is still lossScaleAnswer", () => {
-    const result = check(spec, { formats: ["bfloat16", "e5m2"] });
+  it("--format bfloat16,e5m2 on a plan without scale factors: a not-needed item first, then e5m2's answer, which is still lossScaleAnswer", () => {
+    const result = check(unscaled, { formats: ["bfloat16", "e5m2"] });
     expect(result.lossScales.map((item) => [item.format, item.status === "not-needed" ? item.reason.kind : "answer"])).toEqual([
       ["bfloat16", "wide-range"],
       ["e5m2", "answer"],
     ]);
     expect(result.lossScaleAnswer?.format).toBe("e5m2");
     expect(result.moreLossScaleAnswers).toBeUndefined();
+  });
+
+  it("--format e5m2 on the binary16 plan: e5m2 takes the spec's default per-tensor scale factors, so no loss scale", () => {
+    // scale factors apply to 8-bit formats only (OCP 8-bit specification; src/spec/normalize.ts gives a plan naming one
+    // per-tensor factors by default): the binary16 plan's "none" is no choice about them
+    const result = check(spec, { formats: ["e5m2"] });
+    expect(result.lossScales.map((item) => [item.format, item.status === "not-needed" ? item.reason.kind : "answer"])).toEqual([["e5m2", "scale-factors"]]);
+    expect(result.lossScaleAnswer).toBeNull();
   });
 });

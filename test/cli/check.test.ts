@@ -111,15 +111,24 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(brain.status).toBe(0);
   });
 
-  it("--format e5m2 on a binary16 plan judges e5m2 at the pick of e5m2's own window, and says so", () => {
-    const he = "specs/deep-relu-he.yaml";
+  it("--format e5m2 on a plan without scale factors judges e5m2 at the pick of e5m2's own window, and says so", () => {
+    // the example written in e4m3 without scale factors, a choice the what-if e5m2 keeps (a binary16 plan makes none:
+    // 8-bit formats put in its place take the spec's default per-tensor factors and need no loss scale)
+    const dir = mkdtempSync(join(tmpdir(), "headroom-unscaled-"));
+    const he = join(dir, "deep-relu-he-e4m3.yaml");
+    writeFileSync(
+      he,
+      readFileSync("specs/deep-relu-he.yaml", "utf8").replace(/^precision:\n((?: {2}.*\n)*)/m, (block: string) =>
+        block.replace(/^ {2}(activations|weights|gradients): binary16$/gm, "  $1: e4m3").replace(/\n$/, "\n  scaling: none\n"),
+      ),
+    );
     const json = runCli(["check", "--json", "--format", "e5m2", he]);
     expect(json.stderr).toBe("");
     const result = JSON.parse(json.stdout) as {
       lossScale: { value: number; origin: string; window?: { format: string; pickLog2: number } };
       lossScaleAnswer: { format: string; window: { lowestLog2: number; pickLog2: number } };
     };
-    const plain = JSON.parse(runCli(["check", "--json", he]).stdout) as typeof result;
+    const plain = JSON.parse(runCli(["check", "--json", "--format", "binary16", he]).stdout) as typeof result;
     expect(result.lossScaleAnswer.format).toBe("e5m2");
     expect(result.lossScale.window?.format).toBe("e5m2");
     const pick = result.lossScaleAnswer.window.pickLog2;
@@ -135,6 +144,7 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(flat).toContain(`Use a static loss scale of 2^${pick}`);
     // exit code 1 when the verdict is "fails", 0 otherwise (README.md, "Exit codes")
     expect(text.status).toBe((JSON.parse(json.stdout) as { verdict: string }).verdict === "fails" ? 1 : 0);
+    rmSync(dir, { recursive: true, force: true });
   });
 
   it("a misspelt plan gets the nearest plan name suggested", () => {

@@ -240,7 +240,8 @@ describe("judgePrediction", () => {
   };
 
   it("applies a window's pick to the formats whose plan as judged holds gradients in its format, and judges the others unscaled", () => {
-    const s = spec();
+    // a plan written in e4m3 without scale factors, so the what-if e5m2 keeps none and its gradients take the window
+    const s = { ...spec(), precision: { ...spec().precision, activations: "e4m3", weights: "e4m3", gradients: "e4m3", scaling: "none" } } as ReturnType<typeof spec>;
     const result = judgePrediction(s, PREDICTION, { formats: ["e5m2", "bfloat16"], lossScaleWindows: [e5m2Window] });
     expect(result.lossScale).toEqual({ value: 4096, origin: "recommended", window: e5m2Window });
     expect(result.formats.map((f) => f.lossScale)).toEqual([undefined, { value: 1, origin: "none" }]);
