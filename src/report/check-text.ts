@@ -58,7 +58,7 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
     "  ",
   );
   if (optimizer.reasons.length === 0 && optimizer.reportedAsHazards.length === 0) {
-    out += wrap("no update is lost and the states keep their values.", width, "  ", "  ");
+    out += wrap("the updates lose a negligible share of their squared norm to rounding, and the states keep their values.", width, "  ", "  ");
   }
   for (const reason of optimizer.reasons) out += wrap(reason, width, "  - ", "    ");
   if (optimizer.reportedAsHazards.length > 0) {
