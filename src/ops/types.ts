@@ -105,6 +105,8 @@ export interface ChannelSpread {
   within: number;
   /** E[y²] of the rectifier's output it describes: a layer that changes the tensor leaves it to no one */
   q: number;
+  /** correlation of the input's deviations from its channel's mean between two positions of one sample */
+  position: number;
 }
 
 /** The backward moments of one gradient tensor. */
@@ -165,10 +167,12 @@ export interface Gradient {
   /**
    * set by a batch norm's backward on the gradient it passes to the rectifier whose channels it normalises (Signal.
    * channelSpread), each channel weighed by its gain²/(var_c + ε): E[φ'²], which that rectifier uses in place of its own
-   * (a channel whose mean sits low has both a small variance and few units on), and the gated gradient's sum over one
-   * channel's batch × pixels per unit of N·E[(φ'·δ)²], which sets the pairs of two samples below it
+   * (a channel whose mean sits low has both a small variance and few units on), E[φ'φ'] of two samples and of two
+   * positions of one sample, and the part
+   * of the gated gradient's sum over one channel's batch × pixels, per unit of N·E[(φ'·δ)²], that the norm's x̂ term
+   * takes (it pairs the gate with x̂), which the pairs of two samples below it lose
    */
-  channelGate?: { derivativeSecond: number; sum: number };
+  channelGate?: { derivativeSecond: number; pair: number; positionPair: number; correction: number };
   /**
    * at the start of the horizon, where the labels are independent of the inputs: the loss's expected Gauss–Newton
    * matrix in this tensor's features (set by the loss, carried down through linear layers and pointwise activations).

@@ -270,7 +270,9 @@ export function pointwiseForward(
     // mean, at correlation channelShared/q (Cho & Saul 2009, as for `shared` above)
     const channelCorrelation = Math.max(channelShared / input.q, 0);
     output.channelShared = Math.min(crossMoments(name, slope, qNonzero, channelCorrelation, m).value, output.shared as number);
-    output.channelSpread = { slope: name === "relu" ? 0 : slope, between: Math.max(channelShared, 0), within: input.q - channelShared, q };
+    const within = input.q - channelShared;
+    const position = Math.min(Math.max((positionCorrelation * input.q - channelShared) / within, 0), 1);
+    output.channelSpread = { slope: name === "relu" ? 0 : slope, between: Math.max(channelShared, 0), within, q, position };
   }
   if (bound !== undefined) output.bound = bound;
   if (name === "leaky-relu" && input.gaussian && input.zeroFraction === 0 && Math.abs(input.mean) < 1e-12) output.rectifier = { slope: slope ?? 0, preQ: input.q };
@@ -318,8 +320,11 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   let sampleCross = stash.derivativeCross;
   let positionCross = stash.derivativeCrossPosition;
   if (output.channelGate !== undefined) {
-    // a batch norm above divides each channel by its own variance, and the channels nearly off weigh most
+    // a batch norm above divides each channel by its own variance, and the channels nearly off weigh most: E[φ'²] and
+    // the E[φ'φ'] of two samples and of two positions weighed so
     derivativeSecond = output.channelGate.derivativeSecond;
+    sampleCross = output.channelGate.pair;
+    positionCross = output.channelGate.positionPair;
     if (ledger) rule = channelGateRule(name, derivativeSecond);
   }
   const k = output.windowMaximum;
@@ -488,11 +493,11 @@ export const activationRule: AnalyticRule<ActivationStash> = {
     const gate = output.channelGate;
     const gradient = result.gradient;
     if (gate !== undefined && ctx.batch > 1 && gradient.q > 0) {
-      // each channel's gated sum over batch × pixels is N·q·(sum + (P − 1)·ρ_position) (see Gradient.channelGate): the
-      // pairs of two samples, at one position or two, carry what the batch norm's zero sum leaves of it (own algebra)
-      const positions = positionCount(layer.input);
-      gradient.shared = (gradient.q * (gate.sum - 1)) / ((ctx.batch - 1) * positions);
-      delete gradient.crossCorrelation;
+      // the norm's x̂ term takes N·q·correction from each channel's gated sum over batch × pixels (Gradient.channelGate):
+      // the (B − 1)·P pairs of two samples, at one position or two, lose it (own algebra)
+      const lost = gate.correction / ((ctx.batch - 1) * positionCount(layer.input));
+      gradient.shared = (gradient.shared ?? 0) - gradient.q * lost;
+      if (gradient.crossCorrelation !== undefined) gradient.crossCorrelation -= lost;
     }
     return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: [], weightGradients: [] };
   },

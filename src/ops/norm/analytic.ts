@@ -199,7 +199,7 @@ export const normRule: AnalyticRule<NormStash> = {
       // a layer norm's Jacobian ends in the centring P = I − 1·1ᵀ/n, so P·M·P has rows summing to zero (its definition)
       if (layer.family === "layer-norm") input.curvature.centred = true;
     }
-    if (channels !== undefined) input.channelGate = { derivativeSecond: channels.gate, sum: channels.sum };
+    if (channels !== undefined) input.channelGate = { derivativeSecond: channels.gate, pair: channels.pair, positionPair: channels.positionPair, correction: channels.correction };
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
     // two samples divide by their own s: E[1/s]² = E[1/s²]·e^(−V/4) for log-normal s² (as in sampleSpread)

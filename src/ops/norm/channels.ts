@@ -6,7 +6,7 @@
  * moment holds the channels' mean of 1/(var_c + ε), which a heavy tail puts well above 1/(mean var + ε). The simulation
  * and the risk figures read one draw's tensor, so the rule gives that mean at the median draw.
  */
-import { gaussLegendre } from "../../numeric/quadrature.js";
+import { gaussHermite, gaussLegendre } from "../../numeric/quadrature.js";
 import { normalCdf, normalPdf, normalQuantile } from "../../numeric/normal.js";
 import type { ChannelSpread } from "../types.js";
 
@@ -17,11 +17,15 @@ export interface ChannelInverse {
   inverse: number;
   /** the mean over the channels of E[φ'²|c]/(var_c + ε), divided by `inverse` */
   gate: number;
+  /** E[φ'(u)·φ'(v)] for two samples of one channel (independent given the channel: E[φ'|c]²), weighed as `gate` */
+  pair: number;
+  /** the same for two positions of one sample, whose deviations from the channel's mean correlate (`position`) */
+  positionPair: number;
   /**
-   * E[(Σ φ'·δ)²] of one channel's rectifier-gated gradient summed over its N terms of batch × pixels, per unit of
-   * N·E[(φ'·δ)²] (channels weighed as the two above): what a bias below the rectifier sums
+   * what the norm's x̂ term takes from a channel's gated gradient summed over its N terms of batch × pixels, per unit of
+   * N·E[(φ'·δ)²] (channels weighed as `gate`): the sum a bias below the rectifier gets is the pairs' less this
    */
-  sum: number;
+  correction: number;
 }
 
 /**
@@ -47,25 +51,47 @@ export function rectifierChannel(a: number, slope: number): { variance: number; 
 }
 
 /**
- * A channel's gated gradient summed over its N terms, per unit N·E[δ²] of the gradient above the norm, for δ
- * independent between terms: the norm's backward is δ_x = (δ − mean δ − x̂·mean(δ·x̂))/√(var + ε), and
+ * The x̂ term's part of a channel's gated gradient summed over its N terms, per unit N·E[δ²] of the gradient above the
+ * norm, for δ independent between terms: the norm's backward is δ_x = (δ − mean δ − x̂·mean(δ·x̂))/√(var + ε), and
  * Σ φ'·δ_x = (1 − slope)·Σ_{x>0} δ_x (Σ δ_x = 0), whose coefficients c_i = 1(x_i > 0) − p − x̂_i·S/N have
- * Σ c_i² = N·(p(1 − p) − s²·(2 − var/(var + ε))), p = Φ(a), s = S/N = E[x̂·1(x > 0)] (own algebra).
+ * Σ c_i² = N·(p(1 − p) − s²·(2 − var/(var + ε))), p = Φ(a), s = S/N = E[x̂·1(x > 0)] (own algebra): p(1 − p) is what
+ * gates independent of δ give (the pairs' anti-correlation), the s² term the x̂ term's, which pairs the gate with x̂
  */
-function gatedSum(ch: { variance: number; on: number; onMean: number }, slope: number, epsilon: number): number {
+function gatedCorrection(ch: { variance: number; onMean: number }, slope: number, epsilon: number): number {
   const total = ch.variance + epsilon;
   const s = ch.onMean / Math.sqrt(total);
   const keep = 1 - slope;
-  return (keep * keep * Math.max(ch.on * (1 - ch.on) - s * s * (2 - ch.variance / total), 0)) / total;
+  return (keep * keep * s * s * (2 - ch.variance / total)) / total;
 }
 
+/**
+ * P(x > 0, x' > 0) for x, x' ~ N(a, 1) of correlation ρ ≥ 0: E_t[Φ((a + √ρ·t)/√(1 − ρ))²] over t ~ N(0, 1), the
+ * one-factor form of two equicorrelated Gaussians (Dunnett & Sobel 1955, from memory, as allBelowZero), by
+ * 40-node Gauss–Hermite; ρ above 0.98 taken as 0.98 (the pair then nearly one term, P → Φ(a))
+ */
+function bothOn(a: number, rho: number): number {
+  const cdf = normalCdf(a);
+  if (!(rho > 0)) return cdf * cdf;
+  const r = Math.min(rho, 0.98);
+  const { nodes, weights } = HERMITE;
+  const s = Math.sqrt(2 * r);
+  const d = Math.sqrt(1 - r);
+  let sum = 0;
+  for (let i = 0; i < nodes.length; i++) {
+    const p = normalCdf((a + s * (nodes[i] as number)) / d);
+    sum += (weights[i] as number) * p * p;
+  }
+  return sum / Math.sqrt(Math.PI);
+}
+
+const HERMITE = gaussHermite(40);
 const cache = new Map<string, ChannelInverse>();
 const PANEL = gaussLegendre(12);
 /** u beyond 8.5 standard deviations holds below 1e-16 of the channels */
 const U_END = 8.5;
 
 /**
- * The mean over C channels of X_c = 1/(var_c + ε) (and of Y_c = E[φ'²|c]·X_c, and of the gated sum) at the median draw, for channel means
+ * The mean over C channels of X_c = 1/(var_c + ε) (and of Y_c = E[φ'²|c]·X_c, of the gate's pairs and of the x̂ term's part of the gated sum) at the median draw, for channel means
  * μ_c ~ N(0, between) and a spread `within` about them. X is largest for the channel whose mean is lowest, and its
  * tail is heavy (X grows like e^(a²/2) at a = μ/√within, against the channels' density e^(−a²/2r²)): the mean of C
  * draws is set by their largest. So the largest takes the median of the lowest of C means, a* = r·Φ⁻¹(1 − 2^(−1/C))
@@ -80,13 +106,17 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
   const r = Math.sqrt(Math.max(spread.between, 0) / within);
   const scaledEpsilon = epsilon / within;
   const c = Math.max(Math.round(channels), 1);
-  const key = `${slope} ${r} ${c} ${scaledEpsilon}`;
+  const position = spread.position;
+  const key = `${slope} ${r} ${c} ${scaledEpsilon} ${position}`;
   const hit = cache.get(key);
-  if (hit !== undefined) return { inverse: hit.inverse / within, gate: hit.gate, sum: hit.sum };
-  const at = (a: number): { x: number; y: number; b: number } => {
+  if (hit !== undefined) return { ...hit, inverse: hit.inverse / within };
+  const at = (a: number): { x: number; y: number; z: number; v: number; b: number } => {
     const ch = rectifierChannel(a, slope);
     const x = 1 / (ch.variance + scaledEpsilon);
-    return { x, y: ch.derivativeSecond * x, b: gatedSum(ch, slope, scaledEpsilon) };
+    const gate = slope + (1 - slope) * ch.on;
+    // φ' = slope + (1 − slope)·1(x > 0): two positions' E[φ'φ'] = slope² + 2·slope(1 − slope)·p + (1 − slope)²·P(both on)
+    const both = slope * slope + 2 * slope * (1 - slope) * ch.on + (1 - slope) * (1 - slope) * bothOn(a, position);
+    return { x, y: ch.derivativeSecond * x, z: gate * gate * x, v: both * x, b: gatedCorrection(ch, slope, scaledEpsilon) };
   };
   // the lowest channel's tail probability at its median, p* = 1 − 2^(−1/C)
   const low = -Math.expm1(-Math.LN2 / c);
@@ -97,6 +127,8 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
   let mass = 0;
   let sumX = 0;
   let sumY = 0;
+  let sumZ = 0;
+  let sumV = 0;
   let sumB = 0;
   let u = uLow;
   while (u < U_END) {
@@ -109,6 +141,8 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
       mass += w;
       sumX += w * p.x;
       sumY += w * p.y;
+      sumZ += w * p.z;
+      sumV += w * p.v;
       sumB += w * p.b;
     }
     u += width;
@@ -116,9 +150,17 @@ export function channelInverse(spread: ChannelSpread, channels: number, epsilon:
   const rest = (c - 1) / c;
   const meanX = mass > 0 ? rest * (sumX / mass) + largest.x / c : largest.x;
   const meanY = mass > 0 ? rest * (sumY / mass) + largest.y / c : largest.y;
+  const meanZ = mass > 0 ? rest * (sumZ / mass) + largest.z / c : largest.z;
+  const meanV = mass > 0 ? rest * (sumV / mass) + largest.v / c : largest.v;
   const meanB = mass > 0 ? rest * (sumB / mass) + largest.b / c : largest.b;
-  const result = { inverse: meanX, gate: meanX > 0 ? meanY / meanX : 0, sum: meanY > 0 ? meanB / meanY : 0 };
+  const result = {
+    inverse: meanX,
+    gate: meanX > 0 ? meanY / meanX : 0,
+    pair: meanX > 0 ? meanZ / meanX : 0,
+    positionPair: meanX > 0 ? meanV / meanX : 0,
+    correction: meanY > 0 ? meanB / meanY : 0,
+  };
   if (cache.size >= 256) cache.clear();
   cache.set(key, result);
-  return { inverse: result.inverse / within, gate: result.gate, sum: result.sum };
+  return { ...result, inverse: result.inverse / within };
 }
