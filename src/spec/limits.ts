@@ -14,6 +14,25 @@ export const MAX_TENSOR_ELEMENTS = 1e12;
 /** Largest number of layers a spec may expand to (repeats and blocks unrolled). */
 export const MAX_EXPANDED_LAYERS = 1_000_000;
 
+/**
+ * The range of a magnitude the spec gives as a number (input and target scales, init std, limit and gain, norm gains,
+ * multipliers, learning rates): 10^-30 to 10^30. No real network comes near either end, and the engine squares these
+ * values and takes fourth moments of them (10^±120), times element counts up to 10^12, which binary64 (2^±1022,
+ * about 10^±308, IEEE 754-2019 Table 3.5) still carries with room for the products of depth.
+ */
+export const MAGNITUDE_RANGE = { min: 1e-30, max: 1e30 } as const;
+/**
+ * The range of `horizon.weight-growth`: 10^-3 to 10^3. Weights a thousand times larger or smaller than at
+ * initialisation are beyond any real run, and the growth compounds over depth (g^depth), so a larger bound would
+ * leave binary64 within a few dozen layers.
+ */
+export const WEIGHT_GROWTH_RANGE = { min: 1e-3, max: 1e3 } as const;
+
+/** A bound as a message writes it: 1e30 rather than 1e+30. */
+export function boundText(value: number): string {
+  return String(value).replace("e+", "e");
+}
+
 /** Layer and block names: letters, digits, "_" and "-", starting with a letter, digit or "_". */
 export const NAME_PATTERN = /^[A-Za-z0-9_][A-Za-z0-9_-]*$/;
 

@@ -6,7 +6,11 @@
 import type * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
 import { didYouMean, didYouMeanFormat } from "./issues.js";
-import { BARE_LAYER_TYPES, FINAL_MESSAGE, LAYER_TYPES, MAX_SIZE } from "./limits.js";
+import { BARE_LAYER_TYPES, boundText, FINAL_MESSAGE, LAYER_TYPES, MAGNITUDE_RANGE, MAX_SIZE, WEIGHT_GROWTH_RANGE } from "./limits.js";
+
+/** The lower and upper bounds that mark a value as beyond any real network (limits.ts), rather than impossible. */
+const PLAUSIBLE_MINIMA: ReadonlySet<number> = new Set([MAGNITUDE_RANGE.min, WEIGHT_GROWTH_RANGE.min]);
+const PLAUSIBLE_MAXIMA: ReadonlySet<number> = new Set([MAX_SIZE, MAGNITUDE_RANGE.max, WEIGHT_GROWTH_RANGE.max]);
 
 /** A validation problem before it is given a file position. */
 export interface RawIssue {
@@ -121,6 +125,11 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
         return minimum <= 1 ? "must not be empty" : `must have at least ${minimum} items, got ${Array.isArray(input) ? input.length : 0}`;
       }
       if (issue.origin === "string") return "must not be empty";
+      if (PLAUSIBLE_MINIMA.has(minimum) && issue.inclusive) {
+        // zero and negative values are impossible, not implausible
+        if (typeof input === "number" && input <= 0) return `must be greater than 0, got ${describeValue(input)}`;
+        return `beyond any real network: at least ${boundText(minimum)}, got ${describeValue(input)}; check the value`;
+      }
       const bound = issue.inclusive ? `at least ${minimum}` : `greater than ${minimum}`;
       return `must be ${bound}, got ${describeValue(input)}`;
     }
@@ -129,8 +138,8 @@ export const errorMap: z.core.$ZodErrorMap = (issue) => {
       if (issue.origin === "array" || issue.origin === "set") {
         return `must have at most ${maximum} items, got ${Array.isArray(input) ? input.length : "more"}`;
       }
-      if (maximum === MAX_SIZE && issue.inclusive) {
-        return `beyond any real network: at most ${MAX_SIZE}, got ${describeValue(input)}; check the value`;
+      if (PLAUSIBLE_MAXIMA.has(maximum) && issue.inclusive) {
+        return `beyond any real network: at most ${maximum === MAX_SIZE ? maximum : boundText(maximum)}, got ${describeValue(input)}; check the value`;
       }
       const bound = issue.inclusive ? `at most ${maximum}` : `below ${maximum}`;
       return `must be ${bound}, got ${describeValue(input)}`;

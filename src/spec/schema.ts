@@ -22,6 +22,7 @@ import {
   LEAKY_RELU_SLOPE,
   MAX_EXPANDED_LAYERS,
   MAX_SIZE,
+  MAGNITUDE_RANGE,
   MAX_STEPS,
   NAME_PATTERN,
   NORM_EPSILONS,
@@ -30,6 +31,7 @@ import {
   PADDINGS,
   PLAN_SCALINGS,
   REDUCTIONS,
+  WEIGHT_GROWTH_RANGE,
   WORKER_GRADIENTS,
 } from "./limits.js";
 
@@ -51,10 +53,12 @@ export {
   INIT_SHORTHANDS,
   inputKindCount,
   LAYER_TYPES,
+  MAGNITUDE_RANGE,
   MAX_EXPANDED_LAYERS,
   MAX_SIZE,
   MAX_TENSOR_ELEMENTS,
   NAME_PATTERN,
+  WEIGHT_GROWTH_RANGE,
   type LayerType,
 } from "./limits.js";
 
@@ -75,6 +79,8 @@ function buildSchemas(z: typeof Zod) {
   const positive = (description: string) => z.number().positive().describe(description);
   const nonNegative = (description: string) => z.number().min(0).describe(description);
   const fraction = (description: string) => z.number().min(0).lt(1).describe(description);
+  // a value beyond any real network is refused as a likely typo (limits.ts MAGNITUDE_RANGE)
+  const magnitude = (description: string) => z.number().min(MAGNITUDE_RANGE.min).max(MAGNITUDE_RANGE.max).describe(description);
   const format = (description: string) => z.enum(FORMAT_NAMES).describe(description);
 
   const layerName = z
@@ -86,7 +92,7 @@ function buildSchemas(z: typeof Zod) {
     )
     .optional();
 
-  const gain = z.number().positive().describe("A factor on the standard deviation (default 1)").default(1);
+  const gain = magnitude("A factor on the standard deviation (default 1)").default(1);
 
   const initObject = z.discriminatedUnion("kind", [
     z
@@ -104,14 +110,14 @@ function buildSchemas(z: typeof Zod) {
     z
       .strictObject({
         kind: z.literal("normal").describe("Normal draws with a given standard deviation"),
-        std: positive("The standard deviation"),
+        std: magnitude("The standard deviation"),
         gain,
       })
       .describe("A normal distribution with a given standard deviation"),
     z
       .strictObject({
         kind: z.literal("uniform").describe("Uniform draws on [-limit, limit]"),
-        limit: positive("The half-width of the interval"),
+        limit: magnitude("The half-width of the interval"),
         gain,
       })
       .describe("A uniform distribution on [-limit, limit]"),
@@ -129,7 +135,7 @@ function buildSchemas(z: typeof Zod) {
   const init = z
     .union([
       z.enum(INIT_SHORTHANDS).describe("A shorthand: he-normal, glorot-uniform, lecun-normal, orthogonal, zeros, …"),
-      z.number().positive().describe("The standard deviation of a normal initialisation"),
+      magnitude("The standard deviation of a normal initialisation"),
       initObject,
     ])
     .describe(
@@ -175,11 +181,7 @@ function buildSchemas(z: typeof Zod) {
       vocabulary: size("Number of rows (distinct token ids)"),
       width: size("Width of each row"),
       init: init.optional().describe("Initialisation of the rows (default: normal with std 1)"),
-      multiplier: z
-        .number()
-        .positive()
-        .describe("A constant the looked-up rows are multiplied by, e.g. sqrt(width) (default 1)")
-        .default(1),
+      multiplier: magnitude("A constant the looked-up rows are multiplied by, e.g. sqrt(width) (default 1)").default(1),
     })
     .describe("An embedding table");
 
@@ -205,7 +207,7 @@ function buildSchemas(z: typeof Zod) {
       .strictObject({
         type: z.literal(type).describe(what),
         name: layerName,
-        gain: positive("The value of the gain vector, initial or measured (default 1)").default(1),
+        gain: magnitude("The value of the gain vector, initial or measured (default 1)").default(1),
         epsilon: nonNegative(`Added to the variance before the square root (default ${epsilon})`).default(epsilon),
       })
       .describe(what);
@@ -279,11 +281,7 @@ function buildSchemas(z: typeof Zod) {
     .strictObject({
       type: z.literal("residual").describe("x + multiplier × branch(x)"),
       name: layerName,
-      multiplier: z
-        .number()
-        .positive()
-        .describe("The branch output is multiplied by this before it is added to the input (default 1)")
-        .default(1),
+      multiplier: magnitude("The branch output is multiplied by this before it is added to the input (default 1)").default(1),
       get branch(): Zod.ZodArray<typeof layer> {
         return z.array(layer).min(1).describe("The layers of the branch; the branch must keep the width of its input");
       },
@@ -344,7 +342,7 @@ function buildSchemas(z: typeof Zod) {
       .strictObject({
         features: size("Features per position"),
         positions: size("Positions per sample, e.g. a sequence length (default 1)").default(1),
-        scale: positive("Root-mean-square of an input element (default 1)").default(1),
+        scale: magnitude("Root-mean-square of an input element (default 1)").default(1),
       })
       .describe("Real-valued features"),
     z
@@ -357,7 +355,7 @@ function buildSchemas(z: typeof Zod) {
         channels: size("Image channels"),
         height: size("Image height in pixels"),
         width: size("Image width in pixels"),
-        scale: positive("Root-mean-square of a pixel value (default 1)").default(1),
+        scale: magnitude("Root-mean-square of a pixel value (default 1)").default(1),
       })
       .describe("Images, channels first"),
   ] as const;
@@ -397,7 +395,7 @@ function buildSchemas(z: typeof Zod) {
         .strictObject({
           kind: z.literal("mean-squared-error").describe("Mean squared error"),
           reduction: z.enum(REDUCTIONS).describe("How per-element losses are combined (default mean)").default("mean"),
-          "target-scale": positive("Root-mean-square of a target value (default 1)").default(1),
+          "target-scale": magnitude("Root-mean-square of a target value (default 1)").default(1),
         })
         .describe("Squared error against real-valued targets"),
     ])
@@ -405,11 +403,11 @@ function buildSchemas(z: typeof Zod) {
 
   const learningRate = z
     .union([
-      positive("A constant learning rate"),
+      magnitude("A constant learning rate"),
       z
         .strictObject({
-          peak: positive("The schedule's peak (reached after warm-up)"),
-          end: nonNegative("The final value (default: the peak)").optional(),
+          peak: magnitude("The schedule's peak (reached after warm-up)"),
+          end: z.number().min(0).max(MAGNITUDE_RANGE.max).describe("The final value (default: the peak)").optional(),
         })
         .describe("A schedule's peak and end"),
     ])
@@ -435,7 +433,12 @@ function buildSchemas(z: typeof Zod) {
     .strictObject({
       steps: z.int().min(1).max(MAX_STEPS).describe("Training steps until the end"),
       "final-loss": nonNegative("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
-      "weight-growth": positive("How much the weights' rms grows by the end (default 1: not at all)").default(1),
+      "weight-growth": z
+        .number()
+        .min(WEIGHT_GROWTH_RANGE.min)
+        .max(WEIGHT_GROWTH_RANGE.max)
+        .describe("How much the weights' rms grows by the end (default 1: not at all; from 0.001 to 1000)")
+        .default(1),
     })
     .describe("Where training is expected to end, so late-training gradients are covered too (default: the first step only)");
 

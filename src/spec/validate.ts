@@ -17,6 +17,7 @@ import {
   FAN_RULES,
   INIT_SHORTHANDS,
   LEAKY_RELU_SLOPE,
+  MAGNITUDE_RANGE,
   MAX_EXPANDED_LAYERS,
   MAX_SIZE,
   MAX_STEPS,
@@ -27,6 +28,7 @@ import {
   PADDINGS,
   PLAN_SCALINGS,
   REDUCTIONS,
+  WEIGHT_GROWTH_RANGE,
   WORKER_GRADIENTS,
 } from "./limits.js";
 import type { RawSpec } from "./schema.js";
@@ -74,6 +76,9 @@ const size = (value: unknown): number => integer(value, 1, MAX_SIZE);
 const count = (value: unknown): number => integer(value, 0, MAX_SIZE);
 const positive = (value: unknown): number => (finite(value) > 0 ? (value as number) : refuse());
 const nonNegative = (value: unknown): number => (finite(value) >= 0 ? (value as number) : refuse());
+/** schema.ts `magnitude`: a number within MAGNITUDE_RANGE. */
+const magnitude = (value: unknown): number => (finite(value) >= MAGNITUDE_RANGE.min && (value as number) <= MAGNITUDE_RANGE.max ? (value as number) : refuse());
+const weightGrowth = (value: unknown): number => (finite(value) >= WEIGHT_GROWTH_RANGE.min && (value as number) <= WEIGHT_GROWTH_RANGE.max ? (value as number) : refuse());
 const fraction = (value: unknown): number => (finite(value) >= 0 && (value as number) < 1 ? (value as number) : refuse());
 const boolean = (value: unknown): boolean => (typeof value === "boolean" ? value : refuse());
 const string = (value: unknown): string => (typeof value === "string" ? value : refuse());
@@ -123,28 +128,28 @@ const distribution = oneOf(DISTRIBUTIONS);
 
 function init(value: unknown): unknown {
   if (typeof value === "string") return INIT_SHORTHAND(value);
-  if (typeof value === "number") return positive(value);
+  if (typeof value === "number") return magnitude(value);
   const kind = (value as Data | null)?.["kind"];
   const out: Data = {};
   if (typeof kind === "string" && FAN_RULE.has(kind)) {
     const raw = mapping(value, FAN_KEYS);
     out["kind"] = kind;
     withDefault(out, raw, "distribution", distribution, "normal");
-    withDefault(out, raw, "gain", positive, 1);
+    withDefault(out, raw, "gain", magnitude, 1);
   } else if (kind === "normal") {
     const raw = mapping(value, NORMAL_KEYS);
     out["kind"] = kind;
-    out["std"] = positive(raw["std"]);
-    withDefault(out, raw, "gain", positive, 1);
+    out["std"] = magnitude(raw["std"]);
+    withDefault(out, raw, "gain", magnitude, 1);
   } else if (kind === "uniform") {
     const raw = mapping(value, UNIFORM_KEYS);
     out["kind"] = kind;
-    out["limit"] = positive(raw["limit"]);
-    withDefault(out, raw, "gain", positive, 1);
+    out["limit"] = magnitude(raw["limit"]);
+    withDefault(out, raw, "gain", magnitude, 1);
   } else if (kind === "orthogonal") {
     const raw = mapping(value, ORTHOGONAL_KEYS);
     out["kind"] = kind;
-    withDefault(out, raw, "gain", positive, 1);
+    withDefault(out, raw, "gain", magnitude, 1);
   } else if (kind === "zeros") {
     mapping(value, ZEROS_KEYS);
     out["kind"] = kind;
@@ -187,7 +192,7 @@ const LAYERS: Record<string, { keys: ReadonlySet<string>; fields: (out: Data, ra
       out["vocabulary"] = size(raw["vocabulary"]);
       out["width"] = size(raw["width"]);
       optional(out, raw, "init", init);
-      withDefault(out, raw, "multiplier", positive, 1);
+      withDefault(out, raw, "multiplier", magnitude, 1);
     },
   },
   "layer-norm": norm(NORM_EPSILONS["layer-norm"]),
@@ -205,7 +210,7 @@ const LAYERS: Record<string, { keys: ReadonlySet<string>; fields: (out: Data, ra
   residual: {
     keys: keys("type", "name", "multiplier", "branch"),
     fields: (out, raw) => {
-      withDefault(out, raw, "multiplier", positive, 1);
+      withDefault(out, raw, "multiplier", magnitude, 1);
       out["branch"] = layerList(raw["branch"]);
     },
   },
@@ -255,7 +260,7 @@ function norm(epsilon: number): (typeof LAYERS)[string] {
   return {
     keys: keys("type", "name", "gain", "epsilon"),
     fields: (out, raw) => {
-      withDefault(out, raw, "gain", positive, 1);
+      withDefault(out, raw, "gain", magnitude, 1);
       withDefault(out, raw, "epsilon", nonNegative, epsilon);
     },
   };
@@ -305,7 +310,7 @@ function input(value: unknown): Data {
     const raw = mapping(value, FEATURES_KEYS);
     out["features"] = size(raw["features"]);
     withDefault(out, raw, "positions", size, 1);
-    withDefault(out, raw, "scale", positive, 1);
+    withDefault(out, raw, "scale", magnitude, 1);
   } else if (typeof value === "object" && value !== null && "tokens" in value) {
     out["tokens"] = size(mapping(value, TOKENS_KEYS)["tokens"]);
   } else if (typeof value === "object" && value !== null && "channels" in value) {
@@ -313,7 +318,7 @@ function input(value: unknown): Data {
     out["channels"] = size(raw["channels"]);
     out["height"] = size(raw["height"]);
     out["width"] = size(raw["width"]);
-    withDefault(out, raw, "scale", positive, 1);
+    withDefault(out, raw, "scale", magnitude, 1);
   } else refuse();
   return out;
 }
@@ -332,7 +337,7 @@ function loss(value: unknown): Data {
   } else if (kind === "mean-squared-error") {
     const raw = mapping(value, SQUARED_ERROR_KEYS);
     withDefault(out, raw, "reduction", REDUCTION, "mean");
-    withDefault(out, raw, "target-scale", positive, 1);
+    withDefault(out, raw, "target-scale", magnitude, 1);
   } else refuse();
   return out;
 }
@@ -340,10 +345,10 @@ function loss(value: unknown): Data {
 const SCHEDULE_KEYS = keys("peak", "end");
 
 function learningRate(value: unknown): unknown {
-  if (typeof value === "number") return positive(value);
+  if (typeof value === "number") return magnitude(value);
   const raw = mapping(value, SCHEDULE_KEYS);
-  const out: Data = { peak: positive(raw["peak"]) };
-  optional(out, raw, "end", nonNegative);
+  const out: Data = { peak: magnitude(raw["peak"]) };
+  optional(out, raw, "end", (end) => (nonNegative(end) <= MAGNITUDE_RANGE.max ? (end as number) : refuse()));
   return out;
 }
 
@@ -372,7 +377,7 @@ function horizon(value: unknown): Data {
   const raw = mapping(value, HORIZON_KEYS);
   const out: Data = { steps: integer(raw["steps"], 1, MAX_STEPS) };
   optional(out, raw, "final-loss", nonNegative);
-  withDefault(out, raw, "weight-growth", positive, 1);
+  withDefault(out, raw, "weight-growth", weightGrowth, 1);
   return out;
 }
 

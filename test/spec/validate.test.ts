@@ -86,6 +86,9 @@ function specs(rare: number): fc.Arbitrary<Data> {
   const size = field(fc.oneof(fc.constantFrom(1, 2, 1e9), fc.integer({ min: 1, max: 4096 })));
   const count = field(fc.oneof(fc.constantFrom(0, 1e9), fc.integer({ min: 0, max: 100 })));
   const positive = field(fc.oneof(fc.constantFrom(Number.MIN_VALUE, 1e-8, 1, 1e30), fc.double({ min: 1e-6, max: 1e6, noNaN: true })));
+  // the plausibility bounds of src/spec/limits.ts (MAGNITUDE_RANGE, WEIGHT_GROWTH_RANGE), each side of each bound
+  const magnitude = field(fc.oneof({ arbitrary: fc.constantFrom(Number.MIN_VALUE, 9.9e-31, 1e-30, 1, 1e30, 1.01e30), weight: 1 }, { arbitrary: fc.double({ min: 1e-6, max: 1e6, noNaN: true }), weight: 3 }));
+  const growth = field(fc.oneof({ arbitrary: fc.constantFrom(0, 9.99e-4, 1e-3, 1e3, 1000.5), weight: 1 }, { arbitrary: fc.double({ min: 0.01, max: 100, noNaN: true }), weight: 3 }));
   const nonNegative = field(fc.oneof(fc.constantFrom(0, -0, 1e-8, 2.5), fc.double({ min: 0, max: 10, noNaN: true })));
   const fraction = field(fc.oneof(fc.constantFrom(0, 0.9, 0.999, 1 - 2 ** -53), fc.double({ min: 0, max: 0.99, noNaN: true })));
   const bool = field(fc.boolean());
@@ -96,11 +99,11 @@ function specs(rare: number): fc.Arbitrary<Data> {
   const init = field(
     fc.oneof(
       fc.constantFrom(...INIT_SHORTHANDS),
-      positive,
-      mapping({ kind: fc.constantFrom("he", "glorot", "xavier", "lecun") }, { distribution: field(fc.constantFrom("normal", "uniform")), gain: positive }),
-      mapping({ kind: fc.constant("normal"), std: positive }, { gain: positive }),
-      mapping({ kind: fc.constant("uniform"), limit: positive }, { gain: positive }),
-      mapping({ kind: fc.constant("orthogonal") }, { gain: positive }),
+      magnitude,
+      mapping({ kind: fc.constantFrom("he", "glorot", "xavier", "lecun") }, { distribution: field(fc.constantFrom("normal", "uniform")), gain: magnitude }),
+      mapping({ kind: fc.constant("normal"), std: magnitude }, { gain: magnitude }),
+      mapping({ kind: fc.constant("uniform"), limit: magnitude }, { gain: magnitude }),
+      mapping({ kind: fc.constant("orthogonal") }, { gain: magnitude }),
       mapping({ kind: fc.constant("zeros") }),
     ),
   );
@@ -117,16 +120,16 @@ function specs(rare: number): fc.Arbitrary<Data> {
         rare === 0 ? fc.constantFrom(...BARE_LAYER_TYPES) : fc.constantFrom(...BARE_LAYER_TYPES, "dense", "bogus"),
         simple("dense", { width: size }, { bias: bool, init }),
         simple("conv2d", { channels: size, kernel: size }, { stride: size, padding: field(fc.oneof(fc.constantFrom("same", "valid"), count)), bias: bool, init }),
-        simple("embedding", { vocabulary: size, width: size }, { init, multiplier: positive }),
+        simple("embedding", { vocabulary: size, width: size }, { init, multiplier: magnitude }),
         ...ACTIVATION_TYPES.map((type) => (type === "leaky-relu" ? simple(type, {}, { slope: fraction }) : simple(type))),
-        simple("layer-norm", {}, { gain: positive, epsilon: nonNegative }),
-        simple("rms-norm", {}, { gain: positive, epsilon: nonNegative }),
-        simple("batch-norm", {}, { gain: positive, epsilon: nonNegative }),
+        simple("layer-norm", {}, { gain: magnitude, epsilon: nonNegative }),
+        simple("rms-norm", {}, { gain: magnitude, epsilon: nonNegative }),
+        simple("batch-norm", {}, { gain: magnitude, epsilon: nonNegative }),
         simple("dropout", { rate: fraction }),
         simple("average-pool", { size }, { stride: size }),
         simple("max-pool", { size }, { stride: size }),
         simple("flatten"),
-        simple("residual", { branch: tie("list") }, { multiplier: positive }),
+        simple("residual", { branch: tie("list") }, { multiplier: magnitude }),
         simple("attention", { heads: size, "head-width": size }, {
           causal: bool,
           scaling: field(fc.constantFrom("query", "logits", "none")),
@@ -145,23 +148,23 @@ function specs(rare: number): fc.Arbitrary<Data> {
 
   const input = field(
     fc.oneof(
-      mapping({ features: size }, { positions: size, scale: positive }),
+      mapping({ features: size }, { positions: size, scale: magnitude }),
       mapping({ tokens: size }),
-      mapping({ channels: size, height: size, width: size }, { scale: positive }),
+      mapping({ channels: size, height: size, width: size }, { scale: magnitude }),
       ...(rare === 0 ? [] : [mapping({ features: size, tokens: size })]),
     ),
   );
   const loss = field(
     fc.oneof(
       mapping({ kind: fc.constant("cross-entropy"), classes: field(fc.constantFrom(2, 10, 1e9, ...odd(1))) }, { reduction: field(fc.constantFrom("mean", "sum")) }),
-      mapping({ kind: fc.constant("mean-squared-error") }, { reduction: field(fc.constantFrom("mean", "sum")), "target-scale": positive }),
+      mapping({ kind: fc.constant("mean-squared-error") }, { reduction: field(fc.constantFrom("mean", "sum")), "target-scale": magnitude }),
     ),
   );
   const optimizer = field(
     mapping(
       { kind: field(fc.constantFrom("sgd", "momentum", "adam", "adamw")) },
       {
-        "learning-rate": field(fc.oneof(positive, mapping({ peak: positive }, { end: nonNegative }))),
+        "learning-rate": field(fc.oneof(magnitude, mapping({ peak: magnitude }, { end: nonNegative }))),
         "warmup-steps": count,
         momentum: fraction,
         betas: field(fc.tuple(fraction, fraction)),
@@ -171,7 +174,7 @@ function specs(rare: number): fc.Arbitrary<Data> {
       },
     ),
   );
-  const horizon = field(mapping({ steps: field(fc.constantFrom(1, 1000, 1e12)) }, { "final-loss": nonNegative, "weight-growth": positive }));
+  const horizon = field(mapping({ steps: field(fc.constantFrom(1, 1000, 1e12)) }, { "final-loss": nonNegative, "weight-growth": growth }));
   const training = field(
     mapping(
       { batch: size, loss },
