@@ -643,10 +643,12 @@ export function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: S
 
 /**
  * The largest integer k in [lo, hi] with pred(k) true, for pred true-then-false; null if pred(lo) is false.
- * Gallops from `start` (doubling steps) to bracket the change, then bisects the bracket.
+ * Gallops from `start` (doubling steps) to bracket the change, then bisects the bracket (exported for tests).
  */
-function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number): number | null {
-  const from = Math.min(hi, Math.max(lo, Math.round(start)));
+export function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number): number | null {
+  // a guess that is not a number (a curve the prediction could not carry) starts at the middle: from NaN the gallop
+  // would never meet `hi` or `lo`, and the search would not end
+  const from = Number.isNaN(start) ? Math.floor((lo + hi) / 2) : Math.min(hi, Math.max(lo, Math.round(start)));
   let a: number; // pred(a) true
   let b: number; // pred(b) false
   if (pred(from)) {
@@ -684,8 +686,8 @@ function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, start: n
   return a;
 }
 
-/** The smallest integer k in [lo, hi] with pred(k) true, for pred false-then-true; null if pred(hi) is false. */
-function firstTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number): number | null {
+/** The smallest integer k in [lo, hi] with pred(k) true, for pred false-then-true; null if pred(hi) is false (exported for tests). */
+export function firstTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number): number | null {
   // mirror image: the largest −k with pred true-then-false in −k
   const found = lastTrue(-hi, -lo, (k) => pred(-k), -start);
   return found === null ? null : -found;
