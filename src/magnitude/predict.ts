@@ -14,6 +14,7 @@ import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpCon
 import type { NetworkSpec } from "../spec/types.js";
 import { lossSeed } from "./loss.js";
 import { profileOf } from "./profile.js";
+import { carriedMeanSquare, predictionRangeError } from "./range.js";
 import type {
   HazardSite,
   LedgerEntry,
@@ -176,6 +177,8 @@ class Phase {
     profile: MagnitudeProfile,
     ledger: LedgerNode | null,
   ): void {
+    // a value that left binary64's range would reach the verdict as rms 0 or infinity: an input error instead
+    if (!carriedMeanSquare(profile.meanSquare ?? 0)) this.outOfRange(layer, layerIndex, role, profile.meanSquare ?? 0);
     if (this.phase === "start") {
       this.tensors.push(new PredictedTensor(id, layer, layerIndex, family, role, slot, shape, profile, ledger));
       return;
@@ -183,6 +186,11 @@ class Phase {
     const a = this.tensors[this.emitted++];
     if (a === undefined || layer !== a.layer || role !== a.role) this.disagree(a, layer);
     else a.end = profile;
+  }
+
+  private outOfRange(layer: string, layerIndex: number, role: TensorRole, q: number): never {
+    const path = layer === "input" ? ["input"] : layer === "loss" ? ["training", "loss"] : (layerPath(this.graph.layers, layerIndex) ?? []);
+    throw predictionRangeError({ layer, role, path, phase: this.phase, lossScale: this.lossScale }, q);
   }
 
   private disagree(a: PredictedTensor | undefined, layer: string): never {
@@ -436,6 +444,16 @@ class Phase {
 
 /** Extra inputs of a layer that is not a residual add (one object for all of them). */
 const NO_BRANCH: BranchResults = {};
+
+/** The spec path of the layer with this index, searching residual branches too. */
+function layerPath(layers: readonly GraphLayer[], index: number): GraphLayer["path"] | undefined {
+  for (const layer of layers) {
+    if (layer.index === index) return layer.path;
+    const inner = layer.branch === undefined ? undefined : layerPath(layer.branch, index);
+    if (inner !== undefined) return inner;
+  }
+  return undefined;
+}
 
 /** Families whose output no longer tracks the scale of their input (norms reset it; an embedding starts it). */
 const RESETS = new Set(["layer-norm", "rms-norm", "batch-norm", "embedding"]);
