@@ -1,5 +1,8 @@
 import { check, CheckInputError } from "../check.js";
+import { PredictionRangeError } from "../magnitude/range.js";
 import { formatSpecIssue } from "../spec/index.js";
+import { didYouMean } from "../spec/issues.js";
+import type { NetworkSpec } from "../spec/types.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
 import type { CheckOptions, CheckResult } from "../risk/index.js";
@@ -46,16 +49,25 @@ export async function loadAndCheck(
   if (warnings !== undefined) for (const warning of loaded.warnings) warnings.push(formatSpecIssue(warning));
   // measured weights and recorded statistics (the spec's `measured` section); unreadable ones are input errors
   const network = await loadMeasuredNetwork(loaded);
+  // the one option check() refuses with a RangeError that the command line cannot read alone: a plan the spec lacks
+  if (options.plan !== undefined) planOption(path, loaded.spec, options.plan);
   try {
     return check(loaded.spec, options, network);
   } catch (error) {
-    if (error instanceof CheckInputError) {
+    // a network that cannot be built, or values the prediction cannot carry in binary64: positioned input errors
+    if (error instanceof CheckInputError || error instanceof PredictionRangeError) {
       reportGraphIssues(loaded, error.issues);
       return undefined;
     }
-    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    // any other error is headroom's own (exit code 3), not the user's
     throw error;
   }
+}
+
+/** A `--plan` that names the spec's plan or one of its `plans`; else a UserError naming them (exit code 2). */
+function planOption(path: string, spec: NetworkSpec, name: string): void {
+  const names = [spec.precision.name, ...spec.plans.map((plan) => plan.name)];
+  if (!names.includes(name)) throw new UserError(`${path}: no plan named "${name}" in the spec${didYouMean(name, names)}; its plans: ${names.join(", ")}`);
 }
 
 /** The flags of `check` (src/cli/commands/check.ts). */

@@ -1,9 +1,10 @@
 import { CheckInputError } from "../check.js";
 import { comparePlans } from "../compare.js";
+import { PredictionRangeError } from "../magnitude/range.js";
 import { renderCompareJson, renderCompareText } from "../report/compare-text.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { loadMeasuredNetwork, loadSpecReporting, reportGraphIssues } from "./load-spec.js";
-import { EXIT, raiseExitCode, UserError } from "./errors.js";
+import { EXIT, raiseExitCode } from "./errors.js";
 import { stdoutStyle, textWidth } from "./terminal.js";
 
 /** `headroom compare SPEC`: several precision plans side by side, ranked. */
@@ -20,7 +21,8 @@ export async function runCompare(path: string, flags: { onlySpecPlans?: boolean;
   } catch (error) {
     // the network cannot be built: every plan's check says so, the first one first
     if (error instanceof CheckInputError) return reportGraphIssues(loaded, error.issues);
-    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    // values the prediction cannot carry in binary64, positioned; any other error is headroom's own (exit code 3)
+    if (error instanceof PredictionRangeError) return reportGraphIssues(loaded, error.issues);
     throw error;
   }
   process.stdout.write(

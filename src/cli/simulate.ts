@@ -6,6 +6,8 @@ import { escapeHtml } from "../report/html.js";
 import { formatBinades, formatBytes, formatPercent, formatValue } from "../report/number.js";
 import { renderTable, type Cell } from "../report/table.js";
 import {
+  resolvePlan,
+  shrinkSpec,
   simulate,
   SimulationTooLarge,
   zeroAfterStorage,
@@ -22,11 +24,14 @@ import {
 } from "../simulate/index.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
 import { scaleWords } from "../risk/words.js";
+import type { SpecResult } from "../spec/index.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { parseLossScale } from "./loss-scale.js";
 import { DEFAULT_THRESHOLDS } from "../risk/catalogue.js";
 import { writeFileAtomic } from "./shared.js";
-import { loadSpecReporting } from "./load-spec.js";
+import { buildGraph } from "../graph/index.js";
+import { PredictionRangeError } from "../magnitude/range.js";
+import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { splitList } from "./lists.js";
 
@@ -65,12 +70,15 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
     ...(flags.plan !== undefined ? { plan: flags.plan } : {}),
     ...(flags.lossScale !== undefined ? { lossScale: parseLossScale(flags.lossScale) as number } : {}),
   };
+  if (!simulationBuilds(path, loaded, options.plan, options.shrink)) return;
   let report: SimulationReport;
   try {
     report = simulate(loaded.spec, options);
   } catch (error) {
     if (error instanceof SimulationTooLarge) throw new UserError(`${path}: ${error.message}`);
-    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    // values of the spec that the network cannot be built from or that the prediction cannot carry: positioned
+    if (error instanceof CheckInputError || error instanceof PredictionRangeError) return reportGraphIssues(loaded, error.issues);
+    // any other error is headroom's own (exit code 3): every option was checked above
     throw error;
   }
   if (flags.html !== undefined) {
@@ -78,6 +86,28 @@ export async function runSimulate(path: string, flags: SimulateFlags): Promise<v
   }
   process.stdout.write(flags.json ? renderSimulationJson(report) : renderSimulationText(report, { all: flags.all === true }));
   raiseExitCode(simulationExitCode(report.result));
+}
+
+/**
+ * The input problems the simulation would otherwise refuse with a bare RangeError, checked first: a `--plan` the spec
+ * does not have (a UserError), and a network, shrunk as asked, that cannot be built (its issues positioned in the
+ * spec, exit code 2). False when the issues were reported.
+ */
+function simulationBuilds(path: string, loaded: Extract<SpecResult, { ok: true }>, plan: string | undefined, shrink: Partial<ShrinkFactors> | undefined): boolean {
+  if (plan !== undefined) {
+    try {
+      resolvePlan(loaded.spec, plan);
+    } catch (error) {
+      if (error instanceof RangeError) throw new UserError(`${path}: --plan: ${error.message}`);
+      throw error;
+    }
+  }
+  const shrunk = shrinkSpec(loaded.spec, shrink);
+  const built = buildGraph(shrunk.spec);
+  if (built.ok) return true;
+  const after = shrunk.report.shrunk ? "after --shrink: " : "";
+  reportGraphIssues(loaded, built.issues.map((issue) => ({ ...issue, message: after + issue.message })));
+  return false;
 }
 
 /**
