@@ -1,3 +1,4 @@
+import { lossScaleRangeProblem } from "../spec/limits.js";
 import { UserError } from "./errors.js";
 
 /**
@@ -13,9 +14,7 @@ export function parseLossScale(text: string | undefined): number | undefined {
   if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
     throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
   }
-  const exponent = Math.log2(value);
-  if (exponent < -126 || exponent > 127) {
-    throw new UserError(`--loss-scale: 2^${exponent} is outside the binary32 range (2^-126 to 2^127), got "${text}"`);
-  }
+  const problem = lossScaleRangeProblem(Math.log2(value));
+  if (problem !== undefined) throw new UserError(`--loss-scale: ${problem}, got "${text}"`);
   return value;
 }

@@ -6,7 +6,7 @@
 import { didYouMean } from "./issues.js";
 import type { RawIssue } from "./messages.js";
 import { DEFAULT_PLAN_NAME } from "./normalize.js";
-import { inputKindCount, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./limits.js";
+import { inputKindCount, lossScaleRangeProblem, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./limits.js";
 
 type Path = (string | number)[];
 
@@ -291,12 +291,8 @@ function checkPlan(plan: Record<string, unknown>, path: Path, found: Found): voi
         atKey: false,
         message: `loss scale must be a power of two (such as 1024 or 65536), got ${scale}`,
       });
-    } else if (exponent < -126 || exponent > 127) {
-      found.errors.push({
-        path: [...path, "loss-scale"],
-        atKey: false,
-        message: `loss scale 2^${exponent} is outside the binary32 range (2^-126 to 2^127)`,
-      });
+    } else if (lossScaleRangeProblem(exponent) !== undefined) {
+      found.errors.push({ path: [...path, "loss-scale"], atKey: false, message: `loss scale ${lossScaleRangeProblem(exponent)}` });
     }
   }
   const accumulate = plan["accumulate"];
@@ -425,6 +421,54 @@ function checkTraining(root: Record<string, unknown>, found: Found): void {
   }
 }
 
+/**
+ * A batch norm whose channels hold one value each in a step (batch 1 and one position, features input): its output
+ * x − mean(x) is exactly 0 (Ioffe & Szegedy 2015, Algorithm 1), which no magnitude prediction describes. Followed
+ * through the layers in order (blocks, repeats and residual branches included): a flatten or a pool can bring the
+ * positions down to one. Image inputs are left to the network's build: their sizes take the whole shape rules.
+ */
+function checkSingleValueBatchNorm(root: Record<string, unknown>, found: Found): void {
+  if (finite(record(root["training"])?.["batch"]) !== 1) return;
+  const input = record(root["input"]);
+  if (input === undefined || !("features" in input)) return;
+  const blocks = record(root["blocks"]) ?? {};
+  const reported = new Set<string>();
+  let positions = finite(input["positions"]) ?? 1;
+  const walk = (items: unknown, path: Path, depth: number): void => {
+    // a cycle of blocks is reported by checkBlocks; this walk only stops at it
+    if (!Array.isArray(items) || depth > 64) return;
+    items.forEach((item, index) => {
+      const type = layerType(item);
+      const layer = record(item);
+      const at = [...path, index];
+      if (type === "batch-norm" && positions === 1 && !reported.has(JSON.stringify(at))) {
+        reported.add(JSON.stringify(at));
+        found.errors.push({
+          path: at,
+          atKey: false,
+          message: "batch-norm over one value per channel (batch 1, one position): x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm",
+        });
+      } else if (type === "flatten") positions = 1;
+      else if ((type === "average-pool" || type === "max-pool") && layer) {
+        const size = finite(layer["size"]);
+        const stride = finite(layer["stride"]) ?? size;
+        if (size !== undefined && stride !== undefined && stride > 0) positions = Math.max(1, Math.floor((positions - size) / stride) + 1);
+      } else if (type === "use" && layer && typeof layer["block"] === "string") walk(blocks[layer["block"]], ["blocks", layer["block"]], depth + 1);
+      else if (type === "repeat" && layer) {
+        // the positions only fall, so a second pass meets every batch norm that a later iteration meets
+        const times = finite(layer["times"]) ?? 1;
+        for (let pass = 0; pass < Math.min(times, 2); pass++) walk(layer["layers"], [...at, "layers"], depth + 1);
+      } else if (type === "residual" && layer) {
+        // the branch sees the block's input; the block gives back a tensor of the same shape
+        const before = positions;
+        walk(layer["branch"], [...at, "branch"], depth + 1);
+        positions = before;
+      }
+    });
+  };
+  walk(root["layers"], ["layers"], 0);
+}
+
 function checkMeasuredNames(root: Record<string, unknown>, layerNames: Set<string>, found: Found): void {
   const names = record(record(root["measured"])?.["names"]);
   if (!names) return;
@@ -455,6 +499,7 @@ export function crossChecks(document: unknown): Found {
   checkSizes(root, lists, found);
   checkPlans(root, found);
   checkTraining(root, found);
+  checkSingleValueBatchNorm(root, found);
   checkMeasuredNames(root, names, found);
   return found;
 }

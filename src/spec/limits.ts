@@ -28,6 +28,22 @@ export const MAGNITUDE_RANGE = { min: 1e-30, max: 1e30 } as const;
  */
 export const WEIGHT_GROWTH_RANGE = { min: 1e-3, max: 1e3 } as const;
 
+/**
+ * Why a loss scale 2^exponent is refused, or undefined when it lies in binary32's normal range 2^-126 to 2^127
+ * (IEEE 754-2019 Table 3.5: emin −126, emax 127, p 24; the smallest subnormal is 2^(emin−p+1) = 2^-149), where the
+ * scaled loss is computed with full precision.
+ */
+export function lossScaleRangeProblem(exponent: number): string | undefined {
+  if (exponent >= -126 && exponent <= 127) return undefined;
+  const why =
+    exponent > 127
+      ? "above its largest finite value"
+      : exponent >= -149
+        ? "a subnormal there, holding fewer significant bits"
+        : "below binary32's smallest subnormal, 2^-149: it would be zero";
+  return `2^${exponent} is outside binary32's normal range, 2^-126 to 2^127 (${why})`;
+}
+
 /** A bound as a message writes it: 1e30 rather than 1e+30. */
 export function boundText(value: number): string {
   return String(value).replace("e+", "e");

@@ -171,7 +171,7 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     // the spec's own bound on loss-scale: binary32's normal range, 2^-126 to 2^127 (IEEE 754-2019 Table 3.5)
     const huge = runCli(["check", "--loss-scale", String(2 ** 200), "specs/deep-relu-he.yaml"]);
     expect(huge.status).toBe(2);
-    expect(huge.stderr).toMatch(/--loss-scale: 2\^200 is outside the binary32 range \(2\^-126 to 2\^127\)/);
+    expect(huge.stderr).toMatch(/--loss-scale: 2\^200 is outside binary32's normal range, 2\^-126 to 2\^127 \(above its largest finite value\)/);
     expect(runCli(["check", "--json", "--loss-scale", String(2 ** 127), "specs/deep-relu-he.yaml"]).stderr).toBe("");
   });
 
@@ -183,7 +183,7 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     const decimal = runCli(["check", "--json", "--loss-scale", String(2 ** -22), "specs/deep-relu-he.yaml"]);
     expect(power.stdout).toBe(decimal.stdout);
     // the same bounds: binary32's normal range 2^-126 to 2^127 (IEEE 754-2019 Table 3.5)
-    expect(runCli(["check", "--loss-scale", "2^128", "specs/deep-relu-he.yaml"]).stderr).toMatch(/--loss-scale: 2\^128 is outside the binary32 range/);
+    expect(runCli(["check", "--loss-scale", "2^128", "specs/deep-relu-he.yaml"]).stderr).toMatch(/--loss-scale: 2\^128 is outside binary32's normal range/);
     expect(runCli(["check", "--loss-scale", "2^1.5", "specs/deep-relu-he.yaml"]).stderr).toMatch(/expected a power of two such as 1024 or 0.5, got "2\^1.5"/);
   });
 
