@@ -4,6 +4,7 @@
  */
 import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
+import { PredictionRangeError } from "./magnitude/range.js";
 import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
@@ -444,7 +445,8 @@ export async function checkFile(path: string, options: CheckAnswerOptions = {}):
   try {
     return { ok: true, result: check(loaded.spec, options, network), warnings: [...loaded.warnings, ...measuredWarnings] };
   } catch (error) {
-    if (error instanceof CheckInputError) {
+    // a network that cannot be built, or values whose prediction leaves binary64's range: the spec's problems
+    if (error instanceof CheckInputError || error instanceof PredictionRangeError) {
       return {
         ok: false,
         issues: error.issues.map((issue) => ({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message })),

@@ -56,7 +56,7 @@ export function predictionRangeError(site: RangeSite, q: number): PredictionRang
   if (!forward && site.lossScale !== 1) keys.push(`the loss scale (${site.lossScale})`);
   const when = site.phase === "end" ? " at the end of the horizon" : "";
   const message =
-    `the predicted ${site.role} of ${site.layer}${when} ${direction}, beyond what the prediction carries in binary64; ` +
+    `the predicted ${site.role === "loss" ? "loss value" : `${site.role} of ${site.layer}`}${when} ${direction}, beyond what the prediction carries in binary64; ` +
     `it compounds ${keys.join(", ")}: check those values`;
   return new PredictionRangeError([{ path: site.path, message }]);
 }
