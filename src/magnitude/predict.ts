@@ -185,7 +185,10 @@ class Phase {
     }
     const a = this.tensors[this.emitted++];
     if (a === undefined || layer !== a.layer || role !== a.role) this.disagree(a, layer);
-    else a.end = profile;
+    // nonzero at the start and exactly zero at the end is an underflow (weight growth is positive, and only a final
+    // loss of 0 zeroes the gradients on purpose)
+    if (profile.meanSquare === 0 && (a.start.meanSquare ?? 0) > 0 && this.spec.training.horizon.finalLoss !== 0) this.outOfRange(layer, layerIndex, role, 0);
+    a.end = profile;
   }
 
   private outOfRange(layer: string, layerIndex: number, role: TensorRole, q: number): never {

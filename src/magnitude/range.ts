@@ -49,11 +49,13 @@ export interface RangeSite {
 export function predictionRangeError(site: RangeSite, q: number): PredictionRangeError {
   const direction = Number.isNaN(q) ? "is not a number" : q > CARRIED_MEAN_SQUARE.max ? `grows to rms ${rmsText(q)}, above 2^255` : `shrinks to rms ${rmsText(q)}, below 2^-255`;
   const forward = site.role === "activation" || site.role === "pre-activation" || site.role === "weight";
-  const keys = ["input.scale", "the init (std, limit, gain), gain and multiplier of the layers up to here"];
-  if (site.phase === "end") keys.push("training.horizon.weight-growth");
-  if (!forward) keys.push("training.loss (target-scale, reduction)", "training.batch");
+  // the keys closest to the tensor first: the loss's for gradients and the loss value, then the forward pass's
+  const keys: string[] = [];
   if (!forward && site.phase === "end") keys.push("training.horizon.final-loss");
+  if (!forward) keys.push("training.loss (target-scale, reduction)", "training.batch");
   if (!forward && site.lossScale !== 1) keys.push(`the loss scale (${site.lossScale})`);
+  keys.push("input.scale", "the init (std, limit, gain), gain and multiplier of the layers up to here");
+  if (site.phase === "end") keys.push("training.horizon.weight-growth");
   const when = site.phase === "end" ? " at the end of the horizon" : "";
   const message =
     `the predicted ${site.role === "loss" ? "loss value" : `${site.role} of ${site.layer}`}${when} ${direction}, beyond what the prediction carries in binary64; ` +

@@ -432,7 +432,7 @@ function buildSchemas(z: typeof Zod) {
   const horizon = z
     .strictObject({
       steps: z.int().min(1).max(MAX_STEPS).describe("Training steps until the end"),
-      "final-loss": nonNegative("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
+      "final-loss": z.number().min(0).max(MAGNITUDE_RANGE.max).describe("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
       "weight-growth": z
         .number()
         .min(WEIGHT_GROWTH_RANGE.min)

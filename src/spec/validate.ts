@@ -376,7 +376,7 @@ const HORIZON_KEYS = keys("steps", "final-loss", "weight-growth");
 function horizon(value: unknown): Data {
   const raw = mapping(value, HORIZON_KEYS);
   const out: Data = { steps: integer(raw["steps"], 1, MAX_STEPS) };
-  optional(out, raw, "final-loss", nonNegative);
+  optional(out, raw, "final-loss", (loss) => (nonNegative(loss) <= MAGNITUDE_RANGE.max ? (loss as number) : refuse()));
   withDefault(out, raw, "weight-growth", weightGrowth, 1);
   return out;
 }

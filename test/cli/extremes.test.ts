@@ -29,7 +29,7 @@ describe("spec values beyond any real network, refused by check", () => {
     ],
     [
       "weight-growth-beyond-any-network.yaml",
-      "weight-growth-beyond-any-network.yaml:6:42: training.horizon.weight-growth: beyond any real network: at most 1000, got 1e+300; check the value",
+      "weight-growth-beyond-any-network.yaml:7:42: training.horizon.weight-growth: beyond any real network: at most 1000, got 1e+300; check the value",
     ],
     [
       "init-std-beyond-any-network.yaml",
@@ -53,7 +53,7 @@ describe("spec values beyond any real network, refused by check", () => {
     const rows = rowsOf(run.stdout) as { status: string; error?: { kind: string; position?: { line: number; column: number } } }[];
     expect(rows.map((row) => [row.status, row.error?.kind, row.error?.position?.line, row.error?.position?.column])).toEqual([
       ["error", "input", 6, 51],
-      ["error", "input", 6, 42],
+      ["error", "input", 7, 42],
     ]);
   });
 });

@@ -91,6 +91,31 @@ describe("predict's range guard", () => {
     expect(() => predict(built.graph, spec)).toThrow(/^the prediction leaves binary64's range: the predicted loss value grows to rms \d\.\de\+140, above 2\^255.*training\.loss \(target-scale, reduction\)/);
   });
 
+  it("stops an end-of-horizon tensor that underflows to exactly 0 from a nonzero start, naming the final loss first", () => {
+    // a final loss of 1e-300: the loss value's mean square (1e-300)² = 1e-600 is below binary64's smallest subnormal
+    // 2^-1074 ≈ 4.9e-324 (IEEE 754-2019 Table 3.5), so it is 0 at the end though it was not at the start
+    const spec = specOf(chain(2, 1, "  horizon: { steps: 100, final-loss: 1e-300 }\n"));
+    const built = buildGraph(spec);
+    if (!built.ok) throw new Error("no graph");
+    let caught: unknown;
+    try {
+      predict(built.graph, spec);
+    } catch (error) {
+      caught = error;
+    }
+    expect(caught).toBeInstanceOf(PredictionRangeError);
+    const issue = (caught as PredictionRangeError).issues[0];
+    expect(issue?.path).toEqual(["training", "loss"]);
+    expect(issue?.message).toMatch(/^the predicted loss value at the end of the horizon shrinks to rms 0, below 2\^-255, .*it compounds training\.horizon\.final-loss, /);
+  });
+
+  it("leaves a final loss of exactly 0 alone: its zero gradients at the end are the spec's own", () => {
+    const spec = specOf(chain(2, 1, "  horizon: { steps: 100, final-loss: 0 }\n"));
+    const built = buildGraph(spec);
+    if (!built.ok) throw new Error("no graph");
+    expect(() => predict(built.graph, spec)).not.toThrow();
+  });
+
   it("checkFile gives the problem back positioned, as it does a network that cannot be built", async () => {
     const file = "test/fixtures/specs/extremes/compounding-gain.yaml";
     expect(readFileSync(file, "utf8")).toContain("gain: 1e10");
