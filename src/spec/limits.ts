@@ -15,12 +15,19 @@ export const MAX_TENSOR_ELEMENTS = 1e12;
 export const MAX_EXPANDED_LAYERS = 1_000_000;
 
 /**
- * The range of a magnitude the spec gives as a number (input and target scales, init std, limit and gain, norm gains,
- * multipliers, learning rates): 10^-30 to 10^30. No real network comes near either end, and the engine squares these
- * values and takes fourth moments of them (10^±120), times element counts up to 10^12, which binary64 (2^±1022,
- * about 10^±308, IEEE 754-2019 Table 3.5) still carries with room for the products of depth.
+ * The range of a magnitude the spec gives as a number (init std, limit and gain, norm gains, multipliers, learning
+ * rates): 10^-30 to 10^30. No real network comes near either end, and the engine squares these values and takes
+ * fourth moments of them (10^±120), times element counts up to 10^12, which binary64 (2^±1022, about 10^±308,
+ * IEEE 754-2019 Table 3.5) still carries with room for the products of depth. A weight's std × gain × growth stays
+ * within 10^63, about 2^209.
  */
 export const MAGNITUDE_RANGE = { min: 1e-30, max: 1e30 } as const;
+/**
+ * The range of the data's scales (`input.scale`, `target-scale`): 10^-60 to 10^60, past every format judged
+ * (binary32 holds 2^-149 ≈ 1.4e-45 to 3.4e38, IEEE 754-2019 Table 3.5), so that a spec can describe data no format
+ * holds and see it fail, while the fourth power of either end (10^±240) stays inside binary64.
+ */
+export const SCALE_RANGE = { min: 1e-60, max: 1e60 } as const;
 /**
  * The range of `horizon.weight-growth`: 10^-3 to 10^3. Weights a thousand times larger or smaller than at
  * initialisation are beyond any real run, and the growth compounds over depth (g^depth), so a larger bound would

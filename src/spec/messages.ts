@@ -6,11 +6,11 @@
 import type * as z from "zod";
 import { FORMAT_NAMES } from "../formats/names.js";
 import { didYouMean, didYouMeanFormat } from "./issues.js";
-import { BARE_LAYER_TYPES, boundText, FINAL_MESSAGE, LAYER_TYPES, MAGNITUDE_RANGE, MAX_SIZE, WEIGHT_GROWTH_RANGE } from "./limits.js";
+import { BARE_LAYER_TYPES, boundText, FINAL_MESSAGE, LAYER_TYPES, MAGNITUDE_RANGE, MAX_SIZE, SCALE_RANGE, WEIGHT_GROWTH_RANGE } from "./limits.js";
 
 /** The lower and upper bounds that mark a value as beyond any real network (limits.ts), rather than impossible. */
-const PLAUSIBLE_MINIMA: ReadonlySet<number> = new Set([MAGNITUDE_RANGE.min, WEIGHT_GROWTH_RANGE.min]);
-const PLAUSIBLE_MAXIMA: ReadonlySet<number> = new Set([MAX_SIZE, MAGNITUDE_RANGE.max, WEIGHT_GROWTH_RANGE.max]);
+const PLAUSIBLE_MINIMA: ReadonlySet<number> = new Set([MAGNITUDE_RANGE.min, SCALE_RANGE.min, WEIGHT_GROWTH_RANGE.min]);
+const PLAUSIBLE_MAXIMA: ReadonlySet<number> = new Set([MAX_SIZE, MAGNITUDE_RANGE.max, SCALE_RANGE.max, WEIGHT_GROWTH_RANGE.max]);
 
 /** A validation problem before it is given a file position. */
 export interface RawIssue {

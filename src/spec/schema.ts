@@ -31,6 +31,7 @@ import {
   PADDINGS,
   PLAN_SCALINGS,
   REDUCTIONS,
+  SCALE_RANGE,
   WEIGHT_GROWTH_RANGE,
   WORKER_GRADIENTS,
 } from "./limits.js";
@@ -58,6 +59,7 @@ export {
   MAX_SIZE,
   MAX_TENSOR_ELEMENTS,
   NAME_PATTERN,
+  SCALE_RANGE,
   WEIGHT_GROWTH_RANGE,
   type LayerType,
 } from "./limits.js";
@@ -81,6 +83,7 @@ function buildSchemas(z: typeof Zod) {
   const fraction = (description: string) => z.number().min(0).lt(1).describe(description);
   // a value beyond any real network is refused as a likely typo (limits.ts MAGNITUDE_RANGE)
   const magnitude = (description: string) => z.number().min(MAGNITUDE_RANGE.min).max(MAGNITUDE_RANGE.max).describe(description);
+  const dataScale = (description: string) => z.number().min(SCALE_RANGE.min).max(SCALE_RANGE.max).describe(description);
   const format = (description: string) => z.enum(FORMAT_NAMES).describe(description);
 
   const layerName = z
@@ -342,7 +345,7 @@ function buildSchemas(z: typeof Zod) {
       .strictObject({
         features: size("Features per position"),
         positions: size("Positions per sample, e.g. a sequence length (default 1)").default(1),
-        scale: magnitude("Root-mean-square of an input element (default 1)").default(1),
+        scale: dataScale("Root-mean-square of an input element (default 1)").default(1),
       })
       .describe("Real-valued features"),
     z
@@ -355,7 +358,7 @@ function buildSchemas(z: typeof Zod) {
         channels: size("Image channels"),
         height: size("Image height in pixels"),
         width: size("Image width in pixels"),
-        scale: magnitude("Root-mean-square of a pixel value (default 1)").default(1),
+        scale: dataScale("Root-mean-square of a pixel value (default 1)").default(1),
       })
       .describe("Images, channels first"),
   ] as const;
@@ -395,7 +398,7 @@ function buildSchemas(z: typeof Zod) {
         .strictObject({
           kind: z.literal("mean-squared-error").describe("Mean squared error"),
           reduction: z.enum(REDUCTIONS).describe("How per-element losses are combined (default mean)").default("mean"),
-          "target-scale": magnitude("Root-mean-square of a target value (default 1)").default(1),
+          "target-scale": dataScale("Root-mean-square of a target value (default 1)").default(1),
         })
         .describe("Squared error against real-valued targets"),
     ])

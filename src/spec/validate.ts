@@ -28,6 +28,7 @@ import {
   PADDINGS,
   PLAN_SCALINGS,
   REDUCTIONS,
+  SCALE_RANGE,
   WEIGHT_GROWTH_RANGE,
   WORKER_GRADIENTS,
 } from "./limits.js";
@@ -78,6 +79,8 @@ const positive = (value: unknown): number => (finite(value) > 0 ? (value as numb
 const nonNegative = (value: unknown): number => (finite(value) >= 0 ? (value as number) : refuse());
 /** schema.ts `magnitude`: a number within MAGNITUDE_RANGE. */
 const magnitude = (value: unknown): number => (finite(value) >= MAGNITUDE_RANGE.min && (value as number) <= MAGNITUDE_RANGE.max ? (value as number) : refuse());
+/** schema.ts `dataScale`: a number within SCALE_RANGE. */
+const dataScale = (value: unknown): number => (finite(value) >= SCALE_RANGE.min && (value as number) <= SCALE_RANGE.max ? (value as number) : refuse());
 const weightGrowth = (value: unknown): number => (finite(value) >= WEIGHT_GROWTH_RANGE.min && (value as number) <= WEIGHT_GROWTH_RANGE.max ? (value as number) : refuse());
 const fraction = (value: unknown): number => (finite(value) >= 0 && (value as number) < 1 ? (value as number) : refuse());
 const boolean = (value: unknown): boolean => (typeof value === "boolean" ? value : refuse());
@@ -310,7 +313,7 @@ function input(value: unknown): Data {
     const raw = mapping(value, FEATURES_KEYS);
     out["features"] = size(raw["features"]);
     withDefault(out, raw, "positions", size, 1);
-    withDefault(out, raw, "scale", magnitude, 1);
+    withDefault(out, raw, "scale", dataScale, 1);
   } else if (typeof value === "object" && value !== null && "tokens" in value) {
     out["tokens"] = size(mapping(value, TOKENS_KEYS)["tokens"]);
   } else if (typeof value === "object" && value !== null && "channels" in value) {
@@ -318,7 +321,7 @@ function input(value: unknown): Data {
     out["channels"] = size(raw["channels"]);
     out["height"] = size(raw["height"]);
     out["width"] = size(raw["width"]);
-    withDefault(out, raw, "scale", magnitude, 1);
+    withDefault(out, raw, "scale", dataScale, 1);
   } else refuse();
   return out;
 }
@@ -337,7 +340,7 @@ function loss(value: unknown): Data {
   } else if (kind === "mean-squared-error") {
     const raw = mapping(value, SQUARED_ERROR_KEYS);
     withDefault(out, raw, "reduction", REDUCTION, "mean");
-    withDefault(out, raw, "target-scale", magnitude, 1);
+    withDefault(out, raw, "target-scale", dataScale, 1);
   } else refuse();
   return out;
 }

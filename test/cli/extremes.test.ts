@@ -20,12 +20,12 @@ function rowsOf(stdout: string): unknown[] {
 }
 
 describe("spec values beyond any real network, refused by check", () => {
-  // each was hand-checked against the value's column in the fixture; bounds from src/spec/limits.ts (10^±30, weight
-  // growth 10^±3: "common practice" puts real scales, stds and learning rates many decades inside them)
+  // each was hand-checked against the value's column in the fixture; bounds from src/spec/limits.ts (10^±30, data
+  // scales 10^±60, weight growth 10^±3: "common practice" puts real scales, stds and learning rates decades inside)
   it.each([
     [
       "target-scale-beyond-any-network.yaml",
-      "target-scale-beyond-any-network.yaml:6:51: training.loss.target-scale: beyond any real network: at most 1e30, got 1e+160; check the value",
+      "target-scale-beyond-any-network.yaml:6:51: training.loss.target-scale: beyond any real network: at most 1e60, got 1e+160; check the value",
     ],
     [
       "weight-growth-beyond-any-network.yaml",
@@ -37,7 +37,7 @@ describe("spec values beyond any real network, refused by check", () => {
     ],
     [
       "input-scale-beyond-any-network.yaml",
-      "input-scale-beyond-any-network.yaml:3:31: input.scale: beyond any real network: at least 1e-30, got 1e-300; check the value",
+      "input-scale-beyond-any-network.yaml:3:31: input.scale: beyond any real network: at least 1e-60, got 1e-300; check the value",
     ],
   ])("%s: exit 2, the first line names the position and key", (file, first) => {
     const run = runCli(["check", `${INVALID}/${file}`]);

@@ -88,6 +88,7 @@ function specs(rare: number): fc.Arbitrary<Data> {
   const positive = field(fc.oneof(fc.constantFrom(Number.MIN_VALUE, 1e-8, 1, 1e30), fc.double({ min: 1e-6, max: 1e6, noNaN: true })));
   // the plausibility bounds of src/spec/limits.ts (MAGNITUDE_RANGE, WEIGHT_GROWTH_RANGE), each side of each bound
   const magnitude = field(fc.oneof({ arbitrary: fc.constantFrom(Number.MIN_VALUE, 9.9e-31, 1e-30, 1, 1e30, 1.01e30), weight: 1 }, { arbitrary: fc.double({ min: 1e-6, max: 1e6, noNaN: true }), weight: 3 }));
+  const dataScale = field(fc.oneof({ arbitrary: fc.constantFrom(Number.MIN_VALUE, 9.9e-61, 1e-60, 1, 1e42, 1e60, 1.01e60), weight: 1 }, { arbitrary: fc.double({ min: 1e-6, max: 1e6, noNaN: true }), weight: 3 }));
   const growth = field(fc.oneof({ arbitrary: fc.constantFrom(0, 9.99e-4, 1e-3, 1e3, 1000.5), weight: 1 }, { arbitrary: fc.double({ min: 0.01, max: 100, noNaN: true }), weight: 3 }));
   const nonNegative = field(fc.oneof(fc.constantFrom(0, -0, 1e-8, 2.5), fc.double({ min: 0, max: 10, noNaN: true })));
   const fraction = field(fc.oneof(fc.constantFrom(0, 0.9, 0.999, 1 - 2 ** -53), fc.double({ min: 0, max: 0.99, noNaN: true })));
@@ -148,16 +149,16 @@ function specs(rare: number): fc.Arbitrary<Data> {
 
   const input = field(
     fc.oneof(
-      mapping({ features: size }, { positions: size, scale: magnitude }),
+      mapping({ features: size }, { positions: size, scale: dataScale }),
       mapping({ tokens: size }),
-      mapping({ channels: size, height: size, width: size }, { scale: magnitude }),
+      mapping({ channels: size, height: size, width: size }, { scale: dataScale }),
       ...(rare === 0 ? [] : [mapping({ features: size, tokens: size })]),
     ),
   );
   const loss = field(
     fc.oneof(
       mapping({ kind: fc.constant("cross-entropy"), classes: field(fc.constantFrom(2, 10, 1e9, ...odd(1))) }, { reduction: field(fc.constantFrom("mean", "sum")) }),
-      mapping({ kind: fc.constant("mean-squared-error") }, { reduction: field(fc.constantFrom("mean", "sum")), "target-scale": magnitude }),
+      mapping({ kind: fc.constant("mean-squared-error") }, { reduction: field(fc.constantFrom("mean", "sum")), "target-scale": dataScale }),
     ),
   );
   const optimizer = field(
