@@ -92,7 +92,8 @@ export const FINDING_INFO = {
     short: "hold many subnormals",
     description:
       "This share of the tensor's nonzero elements lands in the subnormal range, where values keep fewer " +
-      "significant bits (a binary16 subnormal near 2^k keeps 25 + k bits). At risk above 25%.",
+      "significant bits (a binary16 subnormal near 2^k keeps 25 + k bits). At risk above 25%. For softmax probabilities, " +
+      "the share of each row's probability mass those elements carry (the weight their precision has in the row's average).",
   },
   "softmax-exp-overflow": {
     title: "Softmax exp overflow",

@@ -186,8 +186,14 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
   let mass: FlushedMass | null = null;
   if (isProbabilityRow(tensor)) {
     const startMass = flushedMass(scaled.start, startScaleLog2, start, limits);
-    const endMass = scaled.same && startScaleLog2 === endScaleLog2 ? startMass : flushedMass(scaled.end, endScaleLog2, end, limits);
-    mass = { start: startMass, end: endMass };
+    const startSubnormal = subnormalMass(scaled.start, startScaleLog2, start, limits);
+    const same = scaled.same && startScaleLog2 === endScaleLog2;
+    mass = {
+      start: startMass,
+      end: same ? startMass : flushedMass(scaled.end, endScaleLog2, end, limits),
+      subnormalStart: startSubnormal,
+      subnormalEnd: same ? startSubnormal : subnormalMass(scaled.end, endScaleLog2, end, limits),
+    };
   }
   const findings = tensorFindings(tensor, limits, worst, start, end, options, mass);
   return {
@@ -212,10 +218,15 @@ export function isProbabilityRow(tensor: Pick<TensorPrediction, "role" | "start"
   return tensor.role === "activation" && p.shape === "log-normal" && p.bound !== undefined && p.bound > 0;
 }
 
-/** The share of each row's probability mass that rounds to zero, at the start and the end of the horizon. */
+/**
+ * The share of each row's probability mass that rounds to zero, at the start and the end of the horizon, and the share
+ * that rounds to a subnormal.
+ */
 interface FlushedMass {
   start: number;
   end: number;
+  subnormalStart: number;
+  subnormalEnd: number;
 }
 
 /**
@@ -229,14 +240,32 @@ interface FlushedMass {
  * any law: the flushed elements are the smallest).
  */
 function flushedMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
+  if (risk.flushedFraction === 0) return 0;
+  // block scale factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
+  return Math.min(risk.flushedFraction, massBelow(profile, limits.flushBound * 2 ** -scaleLog2) ?? 1);
+}
+
+/**
+ * Share of the first moment carried by the elements that round to a subnormal (between the flush bound and the smallest
+ * normal): their precision is what a subnormal costs, and a row's average weighs them by their mass, as it weighs the
+ * flushed ones ({@link flushedMass}; the same closed form and fallback).
+ */
+function subnormalMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
+  if (risk.subnormalFraction === 0) return 0;
+  const factor = 2 ** -scaleLog2;
+  const below = massBelow(profile, limits.minNormal * factor);
+  const flushed = massBelow(profile, limits.flushBound * factor);
+  if (below === null || flushed === null) return risk.subnormalFraction;
+  return Math.min(risk.subnormalFraction, Math.max(0, below - flushed));
+}
+
+// Φ(log2(t/r̄)/√(s² + S²)), the share of the first moment at or below t (flushedMass); null for a law without element
+// spread (the element share is then charged)
+function massBelow(profile: MagnitudeProfile, t: number): number | null {
   const s = profile.elementLog2Spread ?? 0;
-  if (risk.flushedFraction === 0 || !(profile.rms > 0)) return 0;
-  // a per-tensor scale multiplies the elements before the conversion (the profile here is before it); block scale
-  // factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
-  if (!(s > 0)) return risk.flushedFraction;
-  const level = limits.flushBound * 2 ** -scaleLog2;
+  if (!(s > 0) || !(profile.rms > 0)) return null;
   const spread = Math.sqrt(s * s + profile.log2Spread * profile.log2Spread);
-  return Math.min(risk.flushedFraction, normalCdf(Math.log2(level / profile.rms) / spread));
+  return normalCdf(Math.log2(t / profile.rms) / spread);
 }
 
 // the per-tensor scale exponent of the last `evaluate` (a second return value, without an object per call)
@@ -449,7 +478,27 @@ function tensorFindings(
       ].join(""),
     };
   }
-  if (worst.subnormalFraction > t.subnormalAtRisk) {
+  // a probability row: the mass its subnormal elements carry, against the same limit (subnormalMass)
+  if (mass !== null) {
+    const value = Math.max(mass.subnormalStart, mass.subnormalEnd);
+    if (value > t.subnormalAtRisk) {
+      const at = moreAt(mass.subnormalStart, mass.subnormalEnd, worst.flushAt);
+      findings[found++] = {
+        format,
+        subject,
+        source: "tensor",
+        kind: "subnormal-values",
+        severity: "at-risk",
+        value,
+        threshold: t.subnormalAtRisk,
+        at,
+        sentence: [
+          "The elements of ", subject, " that are subnormal in ", format, " ", when(at), " carry ", percent(value),
+          " of each row's probability mass, with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
+        ].join(""),
+      };
+    }
+  } else if (worst.subnormalFraction > t.subnormalAtRisk) {
     const at = moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt);
     findings[found++] = {
       format,

@@ -10,18 +10,22 @@ import { BINARY16 } from "./limits.js";
 // mass its flushed elements carry: the first moment, not their count. The reference is a float64 softmax rounded to
 // binary16 by @petamoriken/float16 (round to nearest, IEEE 754-2019 §4.3.1).
 
-const KEYS = 256;
-const LOGIT_SD = 5;
+const DEFAULT_KEYS = 256;
+const DEFAULT_SD = 5;
+const KEYS = DEFAULT_KEYS;
+const LOGIT_SD = DEFAULT_SD;
 const ROWS = 400;
 
 // rows of softmax(N(0, LOGIT_SD²) logits) in float64 (row maximum subtracted, common practice), then rounded to binary16:
 // the share of nonzero elements that round to zero, and the share of each row's mass they carried
-function simulated(): { elements: number; mass: number; worstRowMass: number } {
+function simulated(LOGIT_SD = DEFAULT_SD, KEYS = DEFAULT_KEYS): { elements: number; mass: number; worstRowMass: number; subnormalElements: number; subnormalMass: number } {
   const random = createRandom(17);
   const logits = new Float64Array(KEYS);
   let flushedElements = 0;
   let massSum = 0;
   let worstRowMass = 0;
+  let subnormalElements = 0;
+  let subnormalMass = 0;
   for (let row = 0; row < ROWS; row++) {
     random.fillNormal(logits);
     let max = -Infinity;
@@ -31,19 +35,24 @@ function simulated(): { elements: number; mass: number; worstRowMass: number } {
     let lost = 0;
     for (let j = 0; j < KEYS; j++) {
       const p = Math.exp(LOGIT_SD * (logits[j] as number) - max) / sum;
-      if (f16round(p) === 0) {
+      const rounded = f16round(p);
+      if (rounded === 0) {
         flushedElements++;
         lost += p;
+      } else if (rounded < 2 ** -14) {
+        // below binary16's smallest normal 2^-14 (IEEE 754-2019 Table 3.5): a subnormal
+        subnormalElements++;
+        subnormalMass += p;
       }
     }
     massSum += lost;
     worstRowMass = Math.max(worstRowMass, lost);
   }
-  return { elements: flushedElements / (ROWS * KEYS), mass: massSum / ROWS, worstRowMass };
+  return { elements: flushedElements / (ROWS * KEYS), mass: massSum / ROWS, worstRowMass, subnormalElements: subnormalElements / (ROWS * KEYS), subnormalMass: subnormalMass / ROWS };
 }
 
 // the engine's profile of those probabilities: rms from E[p²], log-normal elements capped at 1 (src/ops/activation)
-function probabilities(): TensorPrediction {
+function probabilities(LOGIT_SD = DEFAULT_SD, KEYS = DEFAULT_KEYS): TensorPrediction {
   const { second, elementLog2Spread } = softmaxMoments(LOGIT_SD * LOGIT_SD, KEYS);
   const p: MagnitudeProfile = { elements: ROWS * KEYS, zeroFraction: 0, shape: "log-normal", rms: Math.sqrt(second), log2Spread: 0, bound: 1, elementLog2Spread };
   return {
@@ -84,6 +93,22 @@ describe("softmax probabilities in binary16", () => {
     expect(risk.findings.map((f) => f.kind)).not.toContain("flushed-values");
     expect(risk.findings.map((f) => f.kind)).not.toContain("probability-mass-flushed");
     expect(risk.verdict).not.toBe("fails");
+  });
+
+  it("their subnormal elements are judged by the mass they carry too: many elements, little mass, no finding", () => {
+    // logits of sd 3 over 1024 keys: most elements land between 2^-25 and 2^-14, past the 25% share of elements the
+    // subnormal rule counts, while they carry a few percent of a row's mass
+    const wide = simulated(3, 1024);
+    expect(wide.subnormalElements).toBeGreaterThan(DEFAULT_THRESHOLDS.subnormalAtRisk);
+    expect(wide.subnormalMass).toBeLessThan(0.05);
+    const t3 = probabilities(3, 1024);
+    const judged = tensorFormatRisk(t3, BINARY16, tensorStatistics(t3, 1, DEFAULT_THRESHOLDS), {
+      judged: true,
+      perTensorScaling: false,
+      thresholds: DEFAULT_THRESHOLDS as RiskThresholds,
+    });
+    expect(judged.worst.subnormalFraction).toBeGreaterThan(DEFAULT_THRESHOLDS.subnormalAtRisk);
+    expect(judged.findings.map((f) => f.kind)).not.toContain("subnormal-values");
   });
 
   it("a row whose mass does flush is still found: the same logits scaled down by 2^-20", () => {
