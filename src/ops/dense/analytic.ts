@@ -116,15 +116,17 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
 }
 
 /**
- * ln-variance over draws of a sum over the batch of terms with moments `delta` (times an input with none of its own):
- * the part beyond the independent terms' (`independent` of `sum`) is what the samples share, with the shared part's
- * spread; interpolated by that share, exact when either part is the whole (own algebra)
+ * ln-variance over draws of a sum over the batch of terms with moments `delta` (times an input with none of its own),
+ * a tensor of `elements` sums: the part beyond the independent terms' (`independent` of `sum`) is what the samples
+ * share, with the shared part's spread; the independent part's mean square over the elements, each a Gaussian sum of
+ * its own, is a chi-square of that many, Var/E² = 2/elements beyond the gradient's scale (a narrow head's bias); the two
+ * interpolated by the shared part's share, exact when either part is the whole (own algebra)
  */
-export function sumLogVarOf(delta: Gradient, sum: number, independent: number): number {
-  const shared = delta.sharedLogVar;
-  if (shared === undefined || !(sum > 0)) return delta.logVar;
+export function sumLogVarOf(delta: Gradient, sum: number, independent: number, elements: number): number {
+  const own = delta.logVar + (elements > 0 ? LINEAR_KAPPA / elements : 0);
+  if (!(sum > 0)) return own;
   const w = Math.min(Math.max(1 - independent / sum, 0), 1);
-  return delta.logVar + w * (shared - delta.logVar);
+  return own + w * ((delta.sharedLogVar ?? delta.logVar) - own);
 }
 
 /** Backward rule shared by dense and conv2d: δ_in = Wᵀ δ_out, plus the weight and bias gradients. */
@@ -167,7 +169,7 @@ export function linearBackward(
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
-      logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q),
+      logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements),
       rule: ctx.ledger ? weightSumRule(terms) : "",
     },
   ];
@@ -180,7 +182,7 @@ export function linearBackward(
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,
-      logVar: sumLogVarOf(output, biasSum, terms * output.q),
+      logVar: sumLogVarOf(output, biasSum, terms * output.q, bias.elements),
       rule: ctx.ledger ? biasSumRule(terms) : "",
     });
   }

@@ -184,7 +184,7 @@ export const normRule: AnalyticRule<NormStash> = {
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
-        logVar: layer.family === "batch-norm" ? output.logVar : sumLogVarOf(output, biasSum, terms * output.q),
+        logVar: layer.family === "batch-norm" ? output.logVar : sumLogVarOf(output, biasSum, terms * output.q, normBias.elements),
         rule: ctx.ledger ? () => `sum of ${terms} gradients (batch × positions)` : "",
       });
     }
