@@ -123,7 +123,7 @@ export function lossSeed(
       },
       target: { gradient: { q: right.q, zeroFraction: 0, shape: "bounded", bound: Math.abs(k), logVar: right.logVar }, elements: N },
       rule: `softmax cross-entropy over ${C} classes, ${loss.reduction} over ${N}, logit variance ${fmt(s2)} at the median draw: right class rms(1 − p)/${divisor} = ${fmt(Math.sqrt(rightSecond(s2)) / divisor)}, wrong classes rms(p)/${divisor} = ${fmt(Math.sqrt(wrongSecond(s2)) / divisor)}`,
-      source: "softmax cross-entropy gradient p − y (SCIENCE.md §2.1 output seed); Gaussian softmax moments by Laplace-transform quadrature (Cressie et al. 1981)",
+      source: "softmax cross-entropy gradient p − y (common practice); Gaussian softmax moments by Laplace-transform quadrature (Cressie et al. 1981)",
     };
   }
   const M = batch * positions * width;
@@ -160,7 +160,7 @@ export function lossSeed(
     gradient,
     bulk: { gradient, elements: M },
     rule: `mean squared error, ${loss.reduction} over ${M}, at the median draw: 2·rms(y − t)/${divisor} = ${fmt((2 * Math.sqrt(residual)) / divisor)}`,
-    source: "squared-error gradient 2(y − t) (common practice); median over draws of a log-normal output scale (SCIENCE.md §2.6)",
+    source: "squared-error gradient 2(y − t) (common practice); median over draws of a log-normal output scale (Hanin & Nica 2019)",
   };
 }
 

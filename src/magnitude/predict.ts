@@ -91,7 +91,7 @@ function materialise(node: LedgerNode | null, profile: MagnitudeProfile): Ledger
       layer: "(profile)",
       rule: `finite width: the median draw sits e^(−V/4) below the mean, V = ${fmt(variance)}`,
       log2Factor: -variance / 4 / Math.LN2,
-      source: "Hanin & Nica 2019, log-normal norm (SCIENCE.md §2.6)",
+      source: "Hanin & Nica 2019, log-normal norm",
     });
   }
   return out;
@@ -420,7 +420,7 @@ class Phase {
         ratio: outputQ > 0 ? wg.q / outputQ : 0,
         rule: () =>
           `weight gradient: ${textOf(wgRule)}, E[g²] = N·E[x²]·E[δ²]·(1 + (N − 1)·ρ̄)${aligned > 0 ? " + the part the loss's curvature aligns, N²·E[x²]²·var_w·Σ_j M_ij²" : ""} relative to the gradient at the layer's output, ρ̄ the mean correlation of the summed terms`,
-        source: "sum over batch and positions of input × gradient (SCIENCE.md §2.1); variance of a sum of correlated terms (common practice)",
+        source: "sum over batch and positions of input × gradient (chain rule); variance of a sum of correlated terms (common practice)",
       },
     ];
     if (finalQ !== undefined) factors.push({ ratio: finalQ / wg.q, rule: this.combineRule(), source: "independent sums add in second moment, the parts they share coherently (common practice)" });
@@ -605,10 +605,10 @@ function assumptions(spec: NetworkSpec): string[] {
   const t = spec.training;
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
-    "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); coherentRms gives the fully aligned upper bracket (SCIENCE.md §2.1). Rows and columns of ReLU units off for the whole batch are exact zeros.",
+    "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); the JSON's coherentRms gives the fully aligned upper bracket. Rows and columns of ReLU units off for the whole batch are exact zeros.",
     "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
-    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU, the heuristic κ of SCIENCE.md §2.6 for other activations); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; a gradient whose loss seed moves with the output (elasticity e) meets the output's own spread again in the transposed maps below it, 2e times what they add (at most the output's spread); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
-    "rms is that of the nonzero elements at the median draw; meanSquare is the mean-field second moment over all elements.",
+    "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU; for other activations a heuristic κ = E[φ⁴]/E[φ²]² − 1 forward and 3E[φ'⁴]/E[φ'²]² − 1 backward); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; a gradient whose loss seed moves with the output (elasticity e) meets the output's own spread again in the transposed maps below it, 2e times what they add (at most the output's spread); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
+    "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];
   // only token input has an embedding table (specs/README: an embedding must be the first layer, on token input)
@@ -622,7 +622,7 @@ function assumptions(spec: NetworkSpec): string[] {
     const pRight = Math.exp(-t.horizon.finalLoss);
     // an untrained classifier gives the right class about 1/classes: a final loss not below ln(classes) is no surer
     const effect = pRight > 1 / t.loss.classes ? "which shrinks the output gradient" : `no more than the untrained 1/${t.loss.classes}, so the output gradient does not shrink`;
-    list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${String(Number(pRight.toPrecision(3)))}, ${effect} (derivation in src/magnitude/loss.ts).`);
+    list.push(`At the end of the horizon the right-class probability is taken as e^(−final loss) = ${String(Number(pRight.toPrecision(3)))}, ${effect} (own algebra: the mean loss −ln p of the right class, read back as p).`);
   }
   // the residual's mean square goes from the initial loss to the final one: a larger final loss grows the gradient
   else list.push("At the end of the horizon the output residual's rms is √(final loss), which scales the output gradient by √(final loss / initial loss), a shrink when the final loss is the smaller.");

@@ -4,10 +4,10 @@ import type { Curvature, Factor, Gradient, Signal, Text } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
-  lengthMap: "Poole et al. 2016, length map (SCIENCE.md §2.1)",
-  backward: "Schoenholz et al. 2017, backward recursion (SCIENCE.md §2.1)",
-  weightGradient: "sum over batch and positions of input × gradient, independent signs (SCIENCE.md §2.1)",
-  finiteWidth: "Hanin & Nica 2019, log-normal norm with variance κ·Σ1/width (SCIENCE.md §2.6)",
+  lengthMap: "Poole et al. 2016, length map",
+  backward: "Schoenholz et al. 2017, backward recursion",
+  weightGradient: "sum over batch and positions of input × gradient, independent signs (chain rule; common practice)",
+  finiteWidth: "Hanin & Nica 2019, log-normal norm with variance κ·Σ1/width",
 } as const;
 
 /** κ of a linear map's squared norm: Var[g²]/E[g²]² = 2 for Gaussian g (SCIENCE.md §2.6). */

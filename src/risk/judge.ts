@@ -815,7 +815,7 @@ function checkAssumptions(
   } else if (lossScale.origin === "recommended") {
     notes.push(
       `The plan gives no loss scale; gradients are judged multiplied by the recommended ${scaleWords(lossScale.value)}, ` +
-        `picked inside the window of powers of two where no ${lossScale.window?.format} gradient overflows beyond the risk budget or flushes beyond the tolerance (src/scale defaults).`,
+        `picked inside the window of powers of two where no ${lossScale.window?.format} gradient overflows beyond the risk budget or flushes beyond the tolerance (the window's default budget and tolerance).`,
     );
   } else {
     notes.push(`Gradients are judged multiplied by the loss scale ${scaleWords(lossScale.value)} (from the ${lossScale.origin === "plan" ? "plan" : "options"}), and the scaled loss as an operation.`);
@@ -850,7 +850,7 @@ function checkAssumptions(
   }
   const formats = settings.map((setting) => setting.format);
   if (formats.includes("bfloat16")) {
-    notes.push("bfloat16 values below the smallest normal 2^-126 are treated as flushed to zero, as much hardware does (SCIENCE.md §1.2).");
+    notes.push("bfloat16 values below the smallest normal 2^-126 are treated as flushed to zero, as much hardware does (common practice).");
   }
   if (formats.some((format) => FORMATS[format].bits === 8)) {
     notes.push(

@@ -38,8 +38,8 @@ export interface ActivationStash {
   slope?: number;
 }
 
-const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017; SCIENCE.md §2.9)";
-const SOFTMAX_SOURCE = "softmax of n independent N(0, q) logits, E[p²] and E[S + S² − 2Σp³] by quadrature (Cressie et al. 1981 Laplace transform; src/numeric/softmax.ts)";
+const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017)";
+const SOFTMAX_SOURCE = "softmax of n independent N(0, q) logits, E[p²] and E[S + S² − 2Σp³] by quadrature (Cressie et al. 1981 Laplace transform)";
 
 /**
  * φ(0) and φ'(0) for the zero elements of an input (ReLU'(0) = 0 as implementations define it), one function each:

@@ -51,7 +51,7 @@ import type {
 } from "../types.js";
 
 const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q²]·E[k²]";
-const SOFTMAX_SOURCE = "softmax of N(0, Var[s]) logits, E[Σ_j p_j²] by quadrature (Cressie et al. 1981 Laplace transform; src/numeric/softmax.ts)";
+const SOFTMAX_SOURCE = "softmax of N(0, Var[s]) logits, E[Σ_j p_j²] by quadrature (Cressie et al. 1981 Laplace transform)";
 const AVERAGE_SOURCE =
   "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice), plus the query's tilt (own algebra)";
 const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";

@@ -27,7 +27,7 @@ import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
 import { densePullback } from "../dense/analytic.js";
 
-const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field; SCIENCE.md §2.1, §2.9)";
+const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field, Poole et al. 2016)";
 
 /** What the gated feed-forward backward rule needs. */
 export interface GatedStash {

@@ -30,8 +30,8 @@ export interface NormStash {
   channels?: ChannelInverse;
 }
 
-const SOURCE = "normalisation resets the scale to the gain (layer definitions; SCIENCE.md §2.7)";
-const CHANNEL_SOURCE = "each channel divided by its own variance, the channels' mean of 1/(var_c + ε) at the median draw (own algebra, src/ops/norm/channels.ts)";
+const SOURCE = "normalisation resets the scale to the gain (the layers' definitions: Ioffe & Szegedy 2015; Ba et al. 2016; Zhang & Sennrich 2019)";
+const CHANNEL_SOURCE = "each channel divided by its own variance, the channels' mean of 1/(var_c + ε) at the median draw (own algebra)";
 const SPREAD_SOURCE = "each sample divided by its own log-normal statistic, E[1/s²] = e^V/E[s²] (Hanin & Nica 2019; own algebra)";
 
 /** Elements summed into one statistic: features of a position (layer/rms norm), or batch × pixels of a channel (batch norm). */
