@@ -349,9 +349,9 @@ describe("the assumptions listed", () => {
       run(makeSpec([dense("out", 10, lecun)], { loss: crossEntropy(10), training: { horizon: { steps: 100, weightGrowth: 1, finalLoss } } })).assumptions.find((a) =>
         a.startsWith("At the end of the horizon the right-class probability"),
       );
-    expect(at(0.5)).toBe("At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.607, which shrinks the output gradient (derivation in src/magnitude/loss.ts).");
+    expect(at(0.5)).toBe("At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.607, which shrinks the output gradient (own algebra: the mean loss −ln p of the right class, read back as p).");
     expect(at(3)).toBe(
-      "At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.0498, no more than the untrained 1/10, so the output gradient does not shrink (derivation in src/magnitude/loss.ts).",
+      "At the end of the horizon the right-class probability is taken as e^(−final loss) = 0.0498, no more than the untrained 1/10, so the output gradient does not shrink (own algebra: the mean loss −ln p of the right class, read back as p).",
     );
   });
 });
