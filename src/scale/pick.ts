@@ -70,8 +70,15 @@ export function findingsTotal(f: ScaledFindings): number {
   return f.fails + f.atRisk;
 }
 
-// whether a count is strictly better than another: fewer failing, then fewer at risk
-function fewer(a: ScaledFindings, b: ScaledFindings): boolean {
+/**
+ * Whether a count is strictly better than another: fewer findings of the overflow side, then fewer failing, then fewer
+ * at risk. Inside the window every gradient keeps its flushed share of squared norm under the flush tolerance, so a
+ * flush-side finding there costs precision on a bounded share; an overflow under a static scale gives inf or NaN and
+ * costs the step (Micikevicius et al. 2018 §3.2), so no number of flush-side findings outweighs one of the overflow side.
+ * Each count only grows as findings are added, so a count that is not better stays so (the judgement's early stop).
+ */
+export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
+  if (a.overflowSide !== b.overflowSide) return a.overflowSide < b.overflowSide;
   return a.fails < b.fails || (a.fails === b.fails && a.atRisk < b.atRisk);
 }
 
@@ -80,8 +87,8 @@ function fewer(a: ScaledFindings, b: ScaledFindings): boolean {
  * pick leaves, with the tensors and operation layers that have them (from the check's judgement when it was judged
  * there; else it is judged here). The other exponents of the window are judged on the gradients and the scaled
  * operations alone, and the pick is the one with
- *   1. no more findings of the overflow side than the centre (overflow under a static scale gives inf or NaN and a
- *      lost step; flushing costs precision, so the centre's margin below overflow is not traded for it), then
+ *   1. the fewest findings of the overflow side (overflow under a static scale gives inf or NaN and a lost step;
+ *      inside the window flushing costs precision on a bounded share, see {@link fewerFindings}), then
  *   2. the fewest failing findings, then the fewest at risk, then
  *   3. the centre's margin below the overflow edge kept, then the nearest the centre, then the larger scale (a scale
  *      costs nothing until it overflows, Micikevicius et al. 2018 §3.2).
@@ -146,9 +153,9 @@ export function weighPick(
   for (let k = lowest; k <= highest; k++) if (k !== centre) candidates.push(k);
   candidates.sort((a, b) => rank(a) - rank(b));
   for (const k of candidates) {
-    // a count that already has more overflow findings than the centre, or no fewer findings than the best, stops
-    const found = judge(k, (so) => so.overflowSide > centreFindings.overflowSide || !fewer(so, bestFindings));
-    if (found.overflowSide > centreFindings.overflowSide || !fewer(found, bestFindings)) continue;
+    // a count that is already no better than the best stops
+    const found = judge(k, (so) => !fewerFindings(so, bestFindings));
+    if (!fewerFindings(found, bestFindings)) continue;
     best = k;
     bestFindings = found;
     if (findingsTotal(found) === 0) break;

@@ -531,23 +531,27 @@ export function withWeighedPick(answer: LossScaleAnswer, pickLog2: number, weigh
   };
 }
 
-function findingWords(f: ScaledFindings): string {
+// a count in words; `sayNone` adds "(none of a value too large)" where the overflow side is the point
+function findingWords(f: ScaledFindings, sayNone = false): string {
   const total = findingsTotal(f);
   const s = total === 1 ? "" : "s";
   if (total === 0) return "no finding";
-  if (f.atRisk === 0) return `${total} failing finding${s}`;
-  if (f.fails === 0) return `${total} finding${s} at risk`;
-  return `${total} findings (${f.fails} failing, ${f.atRisk} at risk)`;
+  const severities = f.atRisk === 0 || f.fails === 0 ? [] : [`${f.fails} failing, ${f.atRisk} at risk`];
+  const overflow =
+    f.overflowSide === 0 ? (sayNone ? "none of a value too large" : "") : f.overflowSide === total ? (total === 1 ? "of a value too large" : "all of a value too large") : `${f.overflowSide} of a value too large`;
+  const detail = [...severities, ...(overflow === "" ? [] : [overflow])].join("; ");
+  const base = f.atRisk === 0 ? `${total} failing finding${s}` : f.fails === 0 ? `${total} finding${s} at risk` : `${total} findings`;
+  return detail === "" ? base : `${base} (${detail})`;
 }
 
 // what the weighing found, as one sentence after the pick's
 function weighingSentence(window: ScaleWindow, weighing: PickWeighing, options: WindowOptions, pow: (k: number) => string): string {
   const on = "on the gradients and the scaled loss (judged against the check's per-tensor thresholds)";
   if (weighing.centreLog2 === window.pickLog2) {
-    return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer without more overflow.`;
+    return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer of a value too large, or as few and fewer in all.`;
   }
-  const closer = window.marginBelowOverflow! < options.marginBinades ? `, closer to the overflow edge than the ${binades(options.marginBinades)} kept otherwise` : "";
-  return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick)}, the fewest of the window's scales without more overflow${closer}.`;
+  const closer = window.marginBelowOverflow! < options.marginBinades ? `; it sits closer to the overflow edge than the ${binades(options.marginBinades)} kept otherwise` : "";
+  return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick, weighing.atCentre.overflowSide > 0)}, the fewest of a value too large among the window's scales and then the fewest in all (an overflow costs the step; inside the window no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${closer}.`;
 }
 
 // which side of the window a given scale lies on, and what goes wrong there
