@@ -3,6 +3,7 @@
  * hazards, the assumptions and the caution. Pure: a CheckResult in, a string out.
  */
 import type { CheckAnswer } from "../check.js";
+import type { LossScaleAnswer } from "../scale/recommend.js";
 import type { AppliedLossScale, CheckResult, HazardCheck, TensorCheck, TensorCheckRisk, Verdict } from "../risk/index.js";
 import { VERDICT_RANK } from "../risk/verdict-order.js";
 import { itemSummary, lossScaleClause, namesGradientFormats, remedyWords } from "./loss-scale.js";
@@ -95,7 +96,7 @@ export function describePlan(plan: PrecisionPlan): string {
  * The loss-scale line: what was applied and, when the check searched, the window and what sets its edges. With
  * `formats`, the line names the judged formats it is about ("loss scale for e5m2: ...").
  */
-export function describeLossScale(scale: AppliedLossScale, formats?: readonly string[]): string {
+export function describeLossScale(scale: AppliedLossScale, formats?: readonly string[], answer?: LossScaleAnswer): string {
   const window = scale.window;
   const power = (k: number | null): string => (k === null ? "none" : `2^${k}`);
   const head = formats === undefined ? "loss scale" : `loss scale for ${formats.join(", ")}`;
@@ -112,11 +113,14 @@ export function describeLossScale(scale: AppliedLossScale, formats?: readonly st
       ].filter((clause) => clause !== "");
       // "1 lies in the window too" only beside another pick: a pick of 2^0 is 1 itself
       const unscaledToo = (window?.lowestLog2 ?? 1) <= 0 && 0 <= (window?.highestLog2 ?? -1) && window?.pickLog2 !== 0;
+      // running unscaled, judged against the per-tensor thresholds (src/scale/pick.ts): said when it leaves more than the pick
+      const unscaled = answer?.needed === true ? answer.weighing?.unscaled : undefined;
+      const more = unscaled === undefined ? 0 : unscaled.fails + unscaled.atRisk;
       return (
         `${head}: none in the plan; judged with the recommended 2^${window?.pickLog2} = ${formatValue(scale.value)}, ` +
         `inside the window ${power(window?.lowestLog2 ?? null)} to ${power(window?.highestLog2 ?? null)}` +
         (edges.length > 0 ? ` (${edges.join("; ")})` : "") +
-        (unscaledToo ? "; 1 (no scaling) lies in the window too" : "") +
+        (unscaledToo ? `; 1 (no scaling) lies in the window too${more > 0 ? `, but would leave ${more} finding${more === 1 ? "" : "s"} on the gradients and the scaled loss` : ""}` : "") +
         "."
       );
     }
@@ -181,8 +185,16 @@ export function lossScaleLines(result: CheckResult): string[] {
     if (group === undefined) groups.push((group = { scale, formats: [] }));
     group.formats.push(format.format);
   }
-  if (groups.length <= 1 && result.formats.every((f) => f.planned)) return [describeLossScale(result.lossScale)];
-  return groups.map((g) => describeLossScale(g.scale, g.formats));
+  if (groups.length <= 1 && result.formats.every((f) => f.planned)) return [describeLossScale(result.lossScale, undefined, answerFor(result, result.lossScale))];
+  return groups.map((g) => describeLossScale(g.scale, g.formats, answerFor(result, g.scale)));
+}
+
+// the check's loss-scale answer for the gradients a scale was applied to (a CheckAnswer has them; a bare judgement not)
+function answerFor(result: CheckResult | CheckAnswer, scale: AppliedLossScale): LossScaleAnswer | undefined {
+  if (!("lossScales" in result)) return undefined;
+  const format = scale.window?.format ?? result.plan.gradients;
+  for (const item of result.lossScales) if (item.status !== "not-needed" && item.answer.format === format) return item.answer;
+  return undefined;
 }
 
 function sameScale(a: AppliedLossScale, b: AppliedLossScale): boolean {

@@ -19,13 +19,18 @@ export interface ScaledFindings {
   overflowSide: number;
 }
 
-/** How the pick was weighed: present on an answer whose window's centre leaves findings that move with the scale. */
+/**
+ * How the pick was weighed: present on an answer whose window's centre leaves findings that move with the scale, or
+ * whose window holds 1 (no scaling) away from its centre.
+ */
 export interface PickWeighing {
   /** the window's own pick: its centre, kept the margin below the overflow edge when the window allows */
   centreLog2: number;
   /** the findings that move with the scale at the centre, and at the pick (the same when the centre is kept) */
   atCentre: ScaledFindings;
   atPick: ScaledFindings;
+  /** the findings at S = 1 (no scaling), present when 1 lies in the window: what running unscaled would leave */
+  unscaled?: ScaledFindings;
 }
 
 const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow", "saturation", "little-headroom", "loss-value-overflow", "gradient-sum-overflow"]);
@@ -90,11 +95,15 @@ export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
  *   1. the fewest findings of the overflow side (overflow under a static scale gives inf or NaN and a lost step;
  *      inside the window flushing costs precision on a bounded share, see {@link fewerFindings}), then
  *   2. the fewest failing findings, then the fewest at risk, then
- *   3. the centre's margin below the overflow edge kept, then the nearest the centre, then the larger scale (a scale
- *      costs nothing until it overflows, Micikevicius et al. 2018 §3.2).
+ *   3. the centre's margin below the overflow edge kept, then 1 (no scaling) when the pick would lie below it, then
+ *      the nearest the centre, then the larger scale (a scale costs nothing until it overflows, Micikevicius et al.
+ *      2018 §3.2; a scale below 1 buys only room below the overflow edge, which 1 keeps when it keeps the margin, and
+ *      running unscaled needs no scaling at all: common practice).
+ * When 1 lies in the window it is judged too (`unscaled`), so the answer can say what running without a scale leaves.
  * An exponent's judgement stops once its findings so far cannot beat the best (the tensors that had findings at an
  * exponent judged before go first), which gives the same pick as judging every exponent whole.
- * Returns null when the window is empty or the centre leaves no such finding (the centre stands unweighed).
+ * Returns null when the window is empty, or the centre leaves no such finding and 1 is the centre or lies outside
+ * the window (the centre stands unweighed).
  */
 export function weighPick(
   spec: NetworkSpec,
@@ -142,23 +151,40 @@ export function weighPick(
     return found;
   };
   const centreFindings = atCentre?.findings ?? judge(centre, null);
-  if (findingsTotal(centreFindings) === 0) return null;
+  const unscaledInside = window.unscaledFits && centre !== 0;
+  if (findingsTotal(centreFindings) === 0 && !unscaledInside) return null;
 
   let best = centre;
   let bestFindings = centreFindings;
   const keepsMargin = (k: number) => highest - k >= marginBinades;
-  // rule 3.: the margin kept, then the distance, then the larger scale (the centre stays among equals)
-  const rank = (k: number) => (keepsMargin(k) ? 0 : 1e6) + Math.abs(k - centre) * 2 + (k < centre ? 1 : 0);
-  const candidates: number[] = [];
-  for (let k = lowest; k <= highest; k++) if (k !== centre) candidates.push(k);
-  candidates.sort((a, b) => rank(a) - rank(b));
-  for (const k of candidates) {
-    // a count that is already no better than the best stops
-    const found = judge(k, (so) => !fewerFindings(so, bestFindings));
-    if (!fewerFindings(found, bestFindings)) continue;
-    best = k;
-    bestFindings = found;
-    if (findingsTotal(found) === 0) break;
+  if (findingsTotal(centreFindings) > 0) {
+    // rule 3.: the margin kept, then the distance, then the larger scale (the centre stays among equals)
+    const rank = (k: number) => (keepsMargin(k) ? 0 : 1e6) + Math.abs(k - centre) * 2 + (k < centre ? 1 : 0);
+    const candidates: number[] = [];
+    for (let k = lowest; k <= highest; k++) if (k !== centre) candidates.push(k);
+    candidates.sort((a, b) => rank(a) - rank(b));
+    for (const k of candidates) {
+      // a count that is already no better than the best stops
+      const found = judge(k, (so) => !fewerFindings(so, bestFindings));
+      if (!fewerFindings(found, bestFindings)) continue;
+      best = k;
+      bestFindings = found;
+      if (findingsTotal(found) === 0) break;
+    }
   }
-  return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings } };
+  if (!window.unscaledFits) return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings } };
+  const unscaled = best === 0 ? bestFindings : centre === 0 ? centreFindings : judge(0, null);
+  // rule 3.: 1 among equals when the pick lies below it and 1 keeps the margin (or the pick does not either); the best
+  // has the fewest of the window, so 1 is at best its equal
+  if (best < 0 && !fewerFindings(bestFindings, unscaled) && (keepsMargin(0) || !keepsMargin(best))) {
+    best = 0;
+    bestFindings = unscaled;
+  }
+  return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings, unscaled } };
+}
+
+/** Whether running unscaled leaves no more findings than the weighed pick (undefined when 1 was not judged). */
+export function unscaledAsGood(weighing: PickWeighing | undefined): boolean | undefined {
+  if (weighing?.unscaled === undefined) return undefined;
+  return !fewerFindings(weighing.atPick, weighing.unscaled);
 }

@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { findingsTotal, type PickWeighing, type ScaledFindings } from "./pick.js";
+import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
 /** A remedy for an empty (or missing) window, with its effect computed. */
@@ -38,7 +38,10 @@ export interface LossScaleAnswer {
   pick: number | null;
   /** the scale the spec asked to evaluate, and whether it lies in the window */
   requested: { scale: number; inside: boolean } | null;
-  /** false when the window contains S = 1: no scaling needed */
+  /**
+   * false when S = 1 lies in the window and, once the pick is weighed (src/scale/pick.ts, as check does), is the pick
+   * or leaves no more findings than it: no scaling needed
+   */
   needed: boolean;
   options: WindowOptions;
   /** plain sentences: the answer, the edges and what sets them */
@@ -526,6 +529,8 @@ export function withWeighedPick(answer: LossScaleAnswer, pickLog2: number, weigh
     ...answer,
     window,
     pick: 2 ** pickLog2,
+    // 1 in the window is enough only when it is the pick or leaves no more findings than the pick
+    needed: !(w.unscaledFits && (pickLog2 === 0 || unscaledAsGood(weighing) === true)),
     weighing,
     sentences: describe(window, answer.format, answer.options, answer.requested, weighing),
   };
@@ -578,6 +583,7 @@ function describe(
   weighing?: PickWeighing,
 ): string[] {
   const out: string[] = [];
+  const after: string[] = [];
   const pow = (k: number) => `2^${k} = ${powerOfTwoValue(k)}`;
   if (window.empty) {
     if (window.gapBinades !== null) {
@@ -590,18 +596,18 @@ function describe(
       out.push(`No searched scale keeps the flushed gradient energy of ${window.lowerEdgeSetBy} under ${options.flushTolerance} in ${format}.`);
     }
   } else if (window.unscaledFits) {
-    const everywhere = window.lowestLog2 === options.lowestLog2 && window.highestLog2 === options.highestLog2;
-    out.push(
-      everywhere
-        ? `${format} gradients need no loss scale: every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within the window's whole-model bounds.`
-        : `${format} gradients need no loss scale: scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within the window's whole-model bounds, 1 among them; ${weighing !== undefined && weighing.centreLog2 !== window.pickLog2 ? `the pick is ${pow(window.pickLog2!)}` : `${pow(window.pickLog2!)}, the window's centre, leaves the most room on both sides`}.`,
-    );
+    const told = unscaledWindowSentences(window, format, options, weighing, pow);
+    out.push(...told.first);
+    after.push(...told.after);
   } else {
-    out.push(
-      `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick sits ${binades(window.marginAboveFlush!)} above the flush edge and ${binades(window.marginBelowOverflow!)} below the overflow edge.`,
-    );
+    out.push(useSentence(window, pow));
   }
-  if (!window.empty && weighing !== undefined) out.push(weighingSentence(window, weighing, options, pow));
+  // the weighing is told when the centre left findings and either stands or gave way to fewer (a centre below 1 that
+  // gave way to 1 as its equal is told with the window's first sentence)
+  if (!window.empty && weighing !== undefined && findingsTotal(weighing.atCentre) > 0 && (weighing.centreLog2 === window.pickLog2 || fewerFindings(weighing.atPick, weighing.atCentre))) {
+    out.push(weighingSentence(window, weighing, options, pow));
+  }
+  out.push(...after);
   if (requested) {
     // the window's edges use the whole-model budget and a per-gradient energy tolerance, looser than the check's
     // per-tensor thresholds: a scale inside it can still carry tensor findings, which the sentence must not deny
@@ -611,6 +617,66 @@ function describe(
   }
   out.push("The scale is removed before the optimizer step and before gradient clipping, so their settings need no change (Micikevicius et al. 2018 §3.2).");
   return out;
+}
+
+function useSentence(window: ScaleWindow, pow: (k: number) => string): string {
+  return `Use a static loss scale of ${pow(window.pickLog2!)}: the window runs from ${pow(window.lowestLog2!)} (set by ${window.lowerEdgeSetBy ?? "no tensor"} flushing) to ${pow(window.highestLog2!)} (set by ${window.upperEdgeSetBy ?? "no tensor"} overflowing); the pick sits ${binades(window.marginAboveFlush!)} above the flush edge and ${binades(window.marginBelowOverflow!)} below the overflow edge.`;
+}
+
+/**
+ * The sentences of a window that holds 1 (no scaling): those that open the answer, and those told after the weighing's.
+ * "need no loss scale" is said only when 1 is the pick or,
+ * judged against the check's per-tensor thresholds, leaves no more findings than the pick: the window's edges bound the
+ * whole model's overflow and each gradient's flushed energy only, so 1 can lie inside it and still leave findings.
+ */
+function unscaledWindowSentences(
+  window: ScaleWindow,
+  format: FormatName,
+  options: WindowOptions,
+  weighing: PickWeighing | undefined,
+  pow: (k: number) => string,
+): { first: string[]; after: string[] } {
+  const pick = window.pickLog2!;
+  const on = "on the gradients and the scaled loss";
+  const everywhere = window.lowestLog2 === options.lowestLog2 && window.highestLog2 === options.highestLog2;
+  const span = everywhere
+    ? `every scale searched (${pow(options.lowestLog2)} to ${pow(options.highestLog2)}) keeps overflow and flushing within the window's whole-model bounds`
+    : `scales from ${pow(window.lowestLog2!)} to ${pow(window.highestLog2!)} all keep overflow and flushing within the window's whole-model bounds`;
+  if (pick === 0) {
+    const head = `${format} gradients need no loss scale: ${span}, and 1 (no scaling)`;
+    if (weighing === undefined || weighing.centreLog2 === 0) return { first: [`${head}, the window's centre, is the pick: it leaves the most room on both sides.`], after: [] };
+    if (fewerFindings(weighing.atPick, weighing.atCentre)) return { first: [`${head} is the pick.`], after: [] };
+    // the centre lay below 1 and 1 leaves as few findings: a scale below 1 buys only room below the overflow edge
+    return {
+      first: [
+        `${head} is the pick: it leaves as few findings ${on} as the window's centre ${pow(weighing.centreLog2)} (${findingWords(weighing.atCentre)}), and a scale below 1 buys only room below the overflow edge, where 1 keeps ${binades(window.marginBelowOverflow!)}.`,
+      ],
+      after: [],
+    };
+  }
+  const asGood = unscaledAsGood(weighing);
+  const centreKept = weighing === undefined || weighing.centreLog2 === pick;
+  if (asGood === undefined) {
+    // not judged against the per-tensor thresholds (an answer of the window alone)
+    return { first: [`1 (no scaling) lies in the ${format} window: ${span}; ${pow(pick)}, the window's centre, leaves the most room on both sides.`], after: [] };
+  }
+  const unscaled = weighing!.unscaled!;
+  if (asGood) {
+    const tail =
+      pick > 0
+        ? centreKept
+          ? `${pow(pick)}, the window's centre, leaves the most room on both sides`
+          : `the pick is ${pow(pick)}`
+        : `the pick ${pow(pick)} keeps ${binades(window.marginBelowOverflow!)} below the overflow edge, where 1 keeps only ${binades(window.highestLog2!)}`;
+    const noMore = findingsTotal(unscaled) > 0 ? `, no more than ${pow(pick)}` : "";
+    return { first: [`${format} gradients need no loss scale: ${span}, 1 among them, and 1 (no scaling) leaves ${findingWords(unscaled)} ${on}${noMore}; ${tail}.`], after: [] };
+  }
+  return {
+    first: [useSentence(window, pow)],
+    after: [
+      `1 (no scaling) lies in the window too, but would leave ${findingWords(unscaled)} ${on} (judged against the check's per-tensor thresholds, stricter than the window's whole-model bounds), where ${pow(pick)} leaves ${findingWords(weighing!.atPick)}.`,
+    ],
+  };
 }
 
 /** Remedies for an empty window, each with its effect computed, the working ones first and cheapest first. */

@@ -120,9 +120,86 @@ describe("the loss-scale pick weighed against the findings it leaves", () => {
     for (const [k, found] of byScale) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
   });
 
-  it("a spec whose centre leaves no such finding keeps the centre, unweighed", () => {
-    const result = check(load("deep-relu-he.yaml"));
-    expect(result.lossScaleAnswer!.weighing).toBeUndefined();
-    expect(result.lossScaleAnswer!.sentences.join(" ")).toContain("the window's centre, leaves the most room on both sides");
+  it("a spec whose centre is 1 and leaves no such finding keeps the centre, unweighed", () => {
+    const result = check(load("../test/fixtures/specs/hazards/loss-sum-reduction.yaml"));
+    const answer = result.lossScaleAnswer!;
+    expect(answer.window.pickLog2).toBe(0);
+    expect(answer.weighing).toBeUndefined();
+    expect(answer.needed).toBe(false);
+    expect(answer.sentences[0]).toContain("1 (no scaling), the window's centre, is the pick: it leaves the most room on both sides");
+  });
+});
+
+// A small network whose gradients sit near 1: the window reaches far below 1, so its centre does too. The input's
+// scale moves every gradient (dense layers are linear in their input, mean-squared error's gradient in the output).
+function tiny(inputScale: number): NetworkSpec {
+  const text = `input: { features: 4, scale: ${inputScale} }
+training:
+  batch: 2
+  loss: { kind: mean-squared-error }
+precision: { activations: binary16, weights: binary16, gradients: binary16, optimizer-states: binary32, master-weights: binary32, accumulate: binary32 }
+layers:
+  - { type: dense, width: 4 }
+  - relu
+  - { type: dense, width: 1 }
+`;
+  const parsed = parseSpec(text, "tiny.yaml");
+  if (!parsed.ok) throw new Error("the tiny spec does not load");
+  return parsed.spec;
+}
+
+describe("1 (no scaling) in the window, weighed like the other scales", () => {
+  it("deep-relu-he: 1 lies in the window but leaves the hidden gradients subnormal, so the answer does not say no scale is needed", () => {
+    const spec = load("deep-relu-he.yaml");
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    expect(answer.window.unscaledFits).toBe(true);
+    // what running unscaled leaves, from the whole check judged at a given scale of 1
+    const unscaled = counted(check(spec, { lossScale: 1 }), answer.format);
+    expect(unscaled.atRisk + unscaled.fails).toBeGreaterThan(0);
+    expect(answer.weighing!.unscaled).toEqual(unscaled);
+    expect(better(answer.weighing!.atPick, unscaled)).toBe(true);
+    expect(answer.needed).toBe(true);
+    const said = answer.sentences.join(" ");
+    expect(said).not.toContain("need no loss scale");
+    expect(said).toContain(`Use a static loss scale of 2^${answer.window.pickLog2}`);
+    expect(said).toContain(`1 (no scaling) lies in the window too, but would leave ${unscaled.atRisk + unscaled.fails} findings`);
+    // the header under the plan says so too
+    expect(renderCheckText(result, { width: 1000 })).toContain(`1 (no scaling) lies in the window too, but would leave ${unscaled.atRisk + unscaled.fails} findings`);
+  });
+
+  it("a tiny network whose window's centre lies below 1: 1 leaves as few findings and keeps the margin, so 1 is the pick", () => {
+    const spec = tiny(1);
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    expect(weighing.centreLog2).toBeLessThan(0);
+    expect(answer.window.pickLog2).toBe(0);
+    expect(result.lossScale).toMatchObject({ value: 1, origin: "recommended" });
+    // 1 leaves no more than the centre, each judged as a given scale by the whole check
+    const atOne = counted(check(spec, { lossScale: 1 }), answer.format);
+    const atCentre = counted(check(spec, { lossScale: 2 ** weighing.centreLog2 }), answer.format);
+    expect(better(atCentre, atOne)).toBe(false);
+    expect(answer.window.highestLog2!).toBeGreaterThanOrEqual(answer.options.marginBinades);
+    expect(answer.needed).toBe(false);
+    expect(answer.sentences[0]).toContain("need no loss scale");
+    expect(answer.sentences[0]).toContain("1 (no scaling) is the pick: it leaves as few findings");
+  });
+
+  it("a pick below 1 says why: 1 would leave findings of a value too large that the pick does not", () => {
+    const spec = tiny(30);
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const pick = answer.window.pickLog2!;
+    expect(answer.window.unscaledFits).toBe(true);
+    expect(pick).toBeLessThan(0);
+    const atOne = counted(check(spec, { lossScale: 1 }), answer.format);
+    const atPick = counted(check(spec, { lossScale: 2 ** pick }), answer.format);
+    expect(better(atPick, atOne)).toBe(true);
+    expect(answer.weighing!.unscaled).toEqual(atOne);
+    expect(answer.needed).toBe(true);
+    const said = answer.sentences.join(" ");
+    expect(said).not.toContain("need no loss scale");
+    expect(said).toContain(`1 (no scaling) lies in the window too, but would leave ${atOne.fails + atOne.atRisk} findings`);
   });
 });

@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../../src/magnitude/types.js";
-import { lossScaleAnswer } from "../../src/scale/recommend.js";
+import { lossScaleAnswer, withWeighedPick } from "../../src/scale/recommend.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
 import { halfPlan } from "../magnitude/build-spec.js";
 
@@ -85,12 +85,27 @@ describe("lossScaleAnswer", () => {
     expect(working[0]!.window!.unscaledFits).toBe(true);
   });
 
-  it("says no scale is needed when S = 1 lies in the window", () => {
+  it("says no scale is needed when S = 1 lies in the window only once 1 is judged to leave no more findings than the pick", () => {
+    // rms 1e-2 with half a binade of spread: far from binary16's largest finite 65504 and its subnormals below 2^-14
+    // (IEEE 754-2019 Table 3.5), so the window reaches both sides of 1
     const g = gradient("g/activation-gradient", { elements: 1e4, zeroFraction: 0, shape: "gaussian", rms: 1e-2, log2Spread: 0.3 });
     const answer = lossScaleAnswer(prediction(g), plan);
-    expect(answer.needed).toBe(false);
-    expect(answer.sentences[0]).toMatch(/need no loss scale/);
+    expect(answer.window.unscaledFits).toBe(true);
     expect(answer.dynamic).toBeNull();
+    // the window alone (no per-tensor judgement) says 1 lies in it, and no more
+    expect(answer.sentences[0]).toMatch(/^1 \(no scaling\) lies in the binary16 window/);
+    expect(answer.sentences.join(" ")).not.toMatch(/need no loss scale/);
+    const centre = answer.window.pickLog2!;
+    const none = { fails: 0, atRisk: 0, overflowSide: 0 };
+    // judged: 1 leaves nothing, as the pick does
+    const asGood = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: none });
+    expect(asGood.needed).toBe(false);
+    expect(asGood.sentences[0]).toMatch(/need no loss scale/);
+    // judged: 1 leaves 3 findings at risk the pick does not
+    const worse = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: { fails: 0, atRisk: 3, overflowSide: 0 } });
+    expect(worse.needed).toBe(true);
+    expect(worse.sentences.join(" ")).not.toMatch(/need no loss scale/);
+    expect(worse.sentences.join(" ")).toContain("1 (no scaling) lies in the window too, but would leave 3 findings at risk");
   });
 });
 
