@@ -265,6 +265,8 @@ function lossScaleAnswers(
         steps,
         seed: options.seed ?? 1,
         simulate: options.simulateDynamicScale ? "always" : "when-empty",
+        // a given scale is compared with the window as the plan's would be
+        ...(options.lossScale === undefined ? {} : { lossScale: options.lossScale }),
       }),
     );
   }

@@ -102,9 +102,9 @@ export function describeLossScale(scale: AppliedLossScale, formats?: readonly st
   const head = formats === undefined ? "loss scale" : `loss scale for ${formats.join(", ")}`;
   switch (scale.origin) {
     case "plan":
-      return `${head}: ${formatValue(scale.value)} (from the plan).`;
+      return `${head}: ${scaleText(scale.value)} (from the plan)${givenAgainstWindow(scale.value, answer)}.`;
     case "option":
-      return `${head}: ${formatValue(scale.value)} (from the command line).`;
+      return `${head}: ${scaleText(scale.value)} (from the command line)${givenAgainstWindow(scale.value, answer)}.`;
     case "recommended": {
       // what sets each edge, when known; no empty "()" when neither is
       const edges = [
@@ -138,6 +138,25 @@ export function describeLossScale(scale: AppliedLossScale, formats?: readonly st
         "); gradients judged unscaled."
       );
   }
+}
+
+/** A loss scale as written: a power of two as 2^k (with its value where that reads plainly: 2^10 = 1024), else the value. */
+function scaleText(value: number): string {
+  const k = Math.log2(value);
+  if (!Number.isInteger(k) || k === 0) return formatValue(value);
+  return value >= 1e-4 && value < 1e6 ? `2^${k} = ${formatValue(value)}` : `2^${k}`;
+}
+
+// where a given scale lies against the window searched for the same gradients, when the check searched one
+function givenAgainstWindow(value: number, answer: LossScaleAnswer | undefined): string {
+  const w = answer?.window;
+  if (answer?.requested?.scale !== value || w === undefined || w.empty) return "";
+  const k = Math.log2(value);
+  const span = `the window 2^${w.lowestLog2} to 2^${w.highestLog2}`;
+  const binades = (n: number) => `${Number.isInteger(n) ? String(n) : formatBinades(n)} binade${n === 1 ? "" : "s"}`;
+  if (k > w.highestLog2!) return `, ${binades(k - w.highestLog2!)} above ${span} (see Loss scale)`;
+  if (k < w.lowestLog2!) return `, ${binades(w.lowestLog2! - k)} below ${span} (see Loss scale)`;
+  return `, inside ${span}`;
 }
 
 /** Word-wrap text to `width` columns; continuation lines start with `indent`. */

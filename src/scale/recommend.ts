@@ -36,8 +36,11 @@ export interface LossScaleAnswer {
   window: ScaleWindow;
   /** 2^pickLog2, or null */
   pick: number | null;
-  /** the scale the spec asked to evaluate, and whether it lies in the window */
-  requested: { scale: number; inside: boolean } | null;
+  /**
+   * the scale asked to evaluate, and whether it lies in the window: the caller's (`origin` "option", check's
+   * `lossScale`, `--loss-scale`), else the plan's own `loss-scale` ("plan")
+   */
+  requested: { scale: number; inside: boolean; origin: "plan" | "option" } | null;
   /**
    * false when S = 1 lies in the window and, once the pick is weighed (src/scale/pick.ts, as check does), is the pick
    * or leaves no more findings than it: no scaling needed
@@ -61,6 +64,8 @@ export interface LossScaleOptions {
   dynamic?: Partial<DynamicScaleSettings>;
   /** steps of the horizon the dynamic scale is simulated over (the spec's horizon; default 10,000) */
   steps?: number;
+  /** a loss scale the caller gives (check's `lossScale`): compared with the window in place of the plan's */
+  lossScale?: number;
   /** simulate the dynamic scale always, or only when no static scale exists (the default) */
   simulate?: "always" | "when-empty";
   seed?: number;
@@ -105,12 +110,15 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowWithout = lossScaleWindows(curves, windowOptions);
   const window = windowWithout();
   const pick = window.pickLog2 === null ? null : 2 ** window.pickLog2;
+  // the caller's scale wins over the plan's, as it does in the judgement
+  const given = options.lossScale ?? plan.lossScale;
   const requested =
-    plan.lossScale === undefined
+    given === undefined
       ? null
       : {
-          scale: plan.lossScale,
-          inside: !window.empty && Math.log2(plan.lossScale) >= window.lowestLog2! && Math.log2(plan.lossScale) <= window.highestLog2!,
+          scale: given,
+          inside: !window.empty && Math.log2(given) >= window.lowestLog2! && Math.log2(given) <= window.highestLog2!,
+          origin: options.lossScale === undefined ? ("plan" as const) : ("option" as const),
         };
 
   // the gradient tensors themselves are needed only to simulate a dynamic scale (and for the remedies, which come
@@ -612,7 +620,7 @@ function describe(
     // the window's edges use the whole-model budget and a per-gradient energy tolerance, looser than the check's
     // per-tensor thresholds: a scale inside it can still carry tensor findings, which the sentence must not deny
     out.push(
-      `The spec's loss scale ${scaleWords(requested.scale)} is ${requested.inside ? "inside" : "outside"} the window (where the whole model overflows in at most ${plainNumber(options.riskBudget)} of the steps and no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${requested.inside ? "; each tensor is still judged against its own thresholds below" : outsideWords(window, requested.scale)}.`,
+      `${requested.origin === "plan" ? "The spec's loss scale" : "The given loss scale"} ${scaleWords(requested.scale)} is ${requested.inside ? "inside" : "outside"} the window (where the whole model overflows in at most ${plainNumber(options.riskBudget)} of the steps and no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${requested.inside ? "; each tensor is still judged against its own thresholds below" : outsideWords(window, requested.scale)}.`,
     );
   }
   out.push("The scale is removed before the optimizer step and before gradient clipping, so their settings need no change (Micikevicius et al. 2018 §3.2).");

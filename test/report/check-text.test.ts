@@ -244,6 +244,11 @@ describe("the loss-scale line under the plan", () => {
     );
     expect(describeLossScale({ value: 512, origin: "recommended", window: { ...window, pickLog2: 9 } })).toContain("overflows); 1 (no scaling) lies in the window too.");
   });
+  it("writes a given power of two as 2^k, with its value only where that reads plainly", () => {
+    expect(describeLossScale({ value: 2 ** 30, origin: "option" })).toBe("loss scale: 2^30 (from the command line).");
+    expect(describeLossScale({ value: 1024, origin: "plan" })).toBe("loss scale: 2^10 = 1024 (from the plan).");
+    expect(describeLossScale({ value: 1, origin: "option" })).toBe("loss scale: 1 (from the command line).");
+  });
   it("writes no empty parentheses when no tensor sets either edge", () => {
     const line = describeLossScale({ value: 512, origin: "recommended", window: { ...window, lowestLog2: 1, pickLog2: 9, upperEdgeSetBy: null, lowerEdgeSetBy: null } });
     expect(line).toBe("loss scale: none in the plan; judged with the recommended 2^9 = 512, inside the window 2^1 to 2^16.");

@@ -163,7 +163,7 @@ describe("a loss scale the spec gives", () => {
   const g = gradient("g/activation-gradient", { elements: 1e6, zeroFraction: 0, shape: "gaussian", rms: 2 ** -10, log2Spread: 0 });
   it("says inside or outside with the window's own limits, and that tensors are still judged", () => {
     const inside = lossScaleAnswer(prediction(g), { ...plan, lossScale: 1 });
-    expect(inside.requested).toEqual({ scale: 1, inside: true });
+    expect(inside.requested).toEqual({ scale: 1, inside: true, origin: "plan" });
     expect(inside.sentences).toContain(
       "The spec's loss scale 1 is inside the window (where the whole model overflows in at most 1e-4 of the steps and no gradient loses more than 0.1% of its squared norm to flushing); each tensor is still judged against its own thresholds below.",
     );
