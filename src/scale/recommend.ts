@@ -633,9 +633,9 @@ function useSentence(window: ScaleWindow, pow: (k: number) => string): string {
 
 /**
  * The sentences of a window that holds 1 (no scaling): those that open the answer, and those told after the weighing's.
- * "need no loss scale" is said only when 1 is the pick or,
- * judged against the check's per-tensor thresholds, leaves no more findings than the pick: the window's edges bound the
- * whole model's overflow and each gradient's flushed energy only, so 1 can lie inside it and still leave findings.
+ * "need no loss scale" is said only when 1 is the pick or, judged against the check's per-tensor thresholds, leaves no
+ * more findings than the pick: the window's edges bound the whole model's overflow and each gradient's flushed energy
+ * only, so 1 can lie inside it and still leave findings.
  */
 function unscaledWindowSentences(
   window: ScaleWindow,
