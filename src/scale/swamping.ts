@@ -112,7 +112,8 @@ class UpdateShares implements SharesByExponent {
     const from = Math.min(k - (empty ? 160 : 64), empty ? k : this.base);
     const to = Math.max(k + 64, this.base + this.values.length);
     const values = new Float64Array(to - from).fill(NaN);
-    values.set(this.values, this.base - from);
+    // nothing to copy into a new table (its base is 0, which can lie above `from`: a negative offset throws)
+    if (!empty) values.set(this.values, this.base - from);
     this.base = from;
     this.values = values;
     return k - from;

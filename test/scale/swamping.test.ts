@@ -164,6 +164,16 @@ describe("SwampingSums (the optimizer check's swamping sums over shared tables)"
   });
 });
 
+describe("SwampingSums far from 1", () => {
+  it("a first weight of rms 2^240 (beyond the random pairs' range) starts its table without a copy out of bounds", () => {
+    // the first exponent asked for lay above 160: the empty table's copy went to a negative offset and threw RangeError
+    const weight: MagnitudeProfile = { elements: 1e4, zeroFraction: 0, shape: "gaussian", rms: 2 ** 240, log2Spread: 0 };
+    const update: MagnitudeProfile = { elements: 1e4, zeroFraction: 0, shape: "gaussian", rms: 2 ** 220, log2Spread: 0 };
+    const binary32 = getFormat("binary32");
+    expectSame(new SwampingSums([binary32]).lost(weight, update)[0] as number, referenceSwampedShare(weight, update, binary32));
+  });
+});
+
 describe("SwampingSums tables shared across assessments", () => {
   it("an assessment with other formats meeting laws an earlier one met sums its own formats", () => {
     const weight: MagnitudeProfile = { elements: 4096, zeroFraction: 0.25, shape: "gaussian", rms: 0.03, log2Spread: 0 };
