@@ -78,7 +78,8 @@ export function lossSeed(
     const endLoss = phase === "end" ? finalLoss : undefined;
     const end = endLoss !== undefined;
     const pRight = endLoss !== undefined ? Math.exp(-endLoss) : 1 / C;
-    const rightMagnitude = 1 - pRight;
+    // 1 − e^(−L) by expm1: a final loss below 2^-53 would round 1 − p to 0 and leave no gradient
+    const rightMagnitude = endLoss !== undefined ? -Math.expm1(-endLoss) : 1 - pRight;
     // E[p_j²] for a wrong class and E[(1 − p_y)²], as functions of the logit variance
     const wrongSecond = (v: number): number =>
       C < 2 ? 0 : end ? rightMagnitude * rightMagnitude * gaussianSoftmaxMoments(v, C - 1).second : gaussianSoftmaxMoments(v, C).second;

@@ -132,6 +132,12 @@ describe("loss seeds (SCIENCE.md §2.1 output seed; DESIGN.md §3)", () => {
     expect(right.start.rms).toBeCloseTo(Math.sqrt(1 - 2 / 100 + gaussianSoftmaxMoments(s2, 100).second) / 10, 14);
   });
 
+  test("a final loss below 2^-53 keeps its right-class gradient: 1 − e^(−L) = L(1 − L/2 + …) (Taylor), not 1 − 1 = 0", () => {
+    const spec = makeSpec([dense("head", 100, lecun)], { input: features(32), loss: crossEntropy(100), ...training({ batch: 10, horizon: { steps: 10, weightGrowth: 1, finalLoss: 1e-20 } }) });
+    const right = tensor(run(spec), "head/activation-gradient:target-class");
+    expect(right.end.rms / (1e-20 / 10)).toBeCloseTo(1, 12);
+  });
+
   test("mean squared error: 2·√(median E[y²] + target²)/M, the loss at the median draw with the output's spread; the end shrinks to √(final loss)", () => {
     const spec = makeSpec([dense("out", 4, lecun)], { input: features(16), loss: mse(3), ...training({ batch: 8, horizon: { steps: 10, weightGrowth: 1, finalLoss: 0.25 } }) });
     const p = run(spec);
