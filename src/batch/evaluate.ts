@@ -143,10 +143,9 @@ export async function evaluateText<T = SpecSummary>(file: string, original: stri
   } catch (error) {
     const located = positionedIssues(error, locate, file);
     if (located) return { status: "error", error: issuesError(located) };
+    // the spec's own problems come with positions (above: its graph's issues, a prediction leaving binary64's range);
+    // any other error is a failure of headroom itself, as the CLI's commands count it (exit code 3)
     const message = error instanceof Error ? error.message : String(error);
-    // library functions throw RangeError for values the spec allowed but the model cannot take;
-    // anything else is a failure of headroom itself
-    const kind = error instanceof RangeError ? "input" : "internal";
-    return { status: "error", error: oneProblem(kind, `${file}: ${message}`, { file }) };
+    return { status: "error", error: oneProblem("internal", `${file}: ${message}`, { file }) };
   }
 }

@@ -51,11 +51,12 @@ describe("evaluateTask", () => {
       error: { kind: "input", message: 'a.yaml: --vary training.bacth: the spec has no key training.bacth (did you mean "training.batch"?)' },
     });
   });
-  test("a judge failure is an internal error; a RangeError is an input error", async () => {
+  test("a judge failure is an internal error, a RangeError without spec paths too (exit code 3, as the CLI's commands count it)", async () => {
     const boom = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new Error("bug"); } });
     expect(boom).toMatchObject({ error: { kind: "internal", message: "a.yaml: bug" } });
-    const range = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new RangeError("width 0"); } });
-    expect(range).toMatchObject({ error: { kind: "input" } });
+    // a spec's own problems carry spec paths (next test); an offset out of bounds inside headroom is headroom's failure
+    const range = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new RangeError("offset is out of bounds"); } });
+    expect(range).toMatchObject({ error: { kind: "internal", message: "a.yaml: offset is out of bounds" } });
   });
   test("a judge error naming spec paths becomes a positioned input error", async () => {
     const graphError = Object.assign(new RangeError("cannot build"), { issues: [{ path: ["layers", 2, "width"], message: "must equal the classes, 4" }] });
