@@ -26,7 +26,7 @@ import { createRandom, type RandomSource } from "../numeric/random.js";
 import { applyScales, roundScaledInPlace, storageScales } from "./scaling.js";
 import { checkMemory, shrinkSpec } from "./shrink.js";
 import { formatCounts, measureTensor, medianStats, selectElements, tensorMagnitudes } from "./stats.js";
-import type { MeasuredTensor, SimulateOptions, SimulationLossScaleOrigin, SimulationResult, StepRecord, TensorStats } from "./types.js";
+import { SimulationSpecError, type MeasuredTensor, type SimulateOptions, type SimulationLossScaleOrigin, type SimulationResult, type StepRecord, type TensorStats } from "./types.js";
 
 /** Default memory limit: 4 GiB. */
 export const DEFAULT_MEMORY_LIMIT = 4 * 2 ** 30;
@@ -507,7 +507,8 @@ function accumulator(format: Format, options: RoundOptions): RoundFunction | und
 
 /**
  * Simulate one training step (and optional optimizer steps) of a spec, measuring every tensor.
- * Throws RangeError for bad options and SimulationTooLarge when the run would not fit the memory limit.
+ * Throws RangeError for bad options, SimulationSpecError (a RangeError) when the network does not build and
+ * SimulationTooLarge when the run would not fit the memory limit.
  */
 export function runSimulation(original: NetworkSpec, options: SimulateOptions = {}): SimulationResult {
   const seed = options.seed ?? 1;
@@ -519,7 +520,9 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
   const { spec, report } = shrinkSpec(original, options.shrink);
   const built = buildGraph(spec);
   if (!built.ok) {
-    throw new RangeError(`the spec does not build a network${report.shrunk ? " after shrinking" : ""}: ${built.issues.map((i) => i.message).join("; ")}`);
+    // a spec that does not build at full size is reported as written, not as its shrunk copy
+    const full = report.shrunk ? buildGraph(original) : built;
+    throw full.ok ? new SimulationSpecError(built.issues, true) : new SimulationSpecError(full.issues, false);
   }
   const graph = built.graph;
   const plan = resolvePlan(spec, options.plan);

@@ -3,6 +3,7 @@
  * magnitude engine's predictions (src/magnitude/types.ts, TensorPrediction.id).
  */
 import type { FormatName } from "../formats/names.js";
+import type { GraphIssue } from "../graph/index.js";
 import type { PlanSlot, TensorRole } from "../magnitude/types.js";
 import type { NetworkSpec, PrecisionPlan } from "../spec/types.js";
 
@@ -197,5 +198,21 @@ export class SimulationTooLarge extends RangeError {
     this.neededBytes = neededBytes;
     this.limitBytes = limitBytes;
     this.suggestedShrink = suggestedShrink;
+  }
+}
+
+/**
+ * A spec whose network does not build (as given, or after shrinking): `issues` carry each problem's spec path, so a
+ * caller can position them in the file the way check does.
+ */
+export class SimulationSpecError extends RangeError {
+  readonly issues: readonly GraphIssue[];
+  /** the problems appeared only once the spec was shrunk */
+  readonly shrunk: boolean;
+  constructor(issues: readonly GraphIssue[], shrunk: boolean) {
+    super(`the spec does not build a network${shrunk ? " after shrinking" : ""}: ${issues.map((i) => i.message).join("; ")}`);
+    this.name = "SimulationSpecError";
+    this.issues = issues;
+    this.shrunk = shrunk;
   }
 }

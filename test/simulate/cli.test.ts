@@ -117,6 +117,25 @@ describe("headroom simulate (the built binary)", () => {
     expect(broken.status).toBe(2);
     expect(broken.stderr).toMatch(/broken\.yaml:\d+:\d+/);
   });
+
+  it("positions a network that does not build as check does (file:line:column of the layer), exit 2", () => {
+    // a residual branch that widens 16 features to 32 cannot be added back to its input
+    const file = specFile("reswidth.yaml", SMALL.replace("  - { type: dense, width: 32, init: he-normal }\n  - relu\n", "  - type: residual\n    branch:\n      - { type: dense, width: 32 }\n      - relu\n"));
+    const checked = runCli(["check", file]);
+    const simulated = runCli(["simulate", file]);
+    expect(simulated.status).toBe(2);
+    expect(checked.stderr).toMatch(/reswidth\.yaml:16:5: layers\[0\]: residual-0: /);
+    expect(simulated.stderr).toBe(checked.stderr);
+    expect(simulated.stdout).toBe("");
+  });
+
+  it("says when the network builds at full size but not after shrinking, positioned at the layer", () => {
+    const file = specFile("pool.yaml", SMALL.replace("input: { features: 16, scale: 1.0 }", "input: { channels: 2, height: 8, width: 8 }").replace("  - relu\n", "  - relu\n  - { type: average-pool, size: 4 }\n  - flatten\n").replace("type: dense, width: 32", "type: conv2d, channels: 4, kernel: 3, padding: same"));
+    expect(runCli(["simulate", file, "--draws", "1"]).status).toBe(0);
+    const run = runCli(["simulate", file, "--shrink", "image=4"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toMatch(/pool\.yaml:18:5: layers\[2\]: after --shrink: average-pool-2: a 4×4 window does not fit a 2×2 image/);
+  });
 });
 
 // Forward healthy (He, ReLU), backward tiny: the class scores' weights (std 1e-6) shrink every gradient below them by
