@@ -334,8 +334,8 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   });
   lines.push(
     options.all === true
-      ? `Every tensor (${result.tensors.length}); diff = log2(measured / predicted rms), rms over finite nonzero elements, quantiles of |x|:`
-      : `Tensors with findings or disagreements: ${shown.length} of ${result.tensors.length} (--all lists every one); diff = log2(measured / predicted rms):`,
+      ? `Every measured tensor (${result.tensors.length}); diff = log2(measured / predicted rms), rms over finite nonzero elements, quantiles of |x|:`
+      : `Tensors with findings or disagreements: ${shown.length} of the ${result.tensors.length} measured (--all lists every one); diff = log2(measured / predicted rms):`,
   );
   lines.push(renderTable(columns, cells).trimEnd());
   if (nonFinite) {
@@ -416,14 +416,15 @@ export function lossScaleWords(result: SimulationResult): string {
 }
 
 function disagreementLines(comparison: Comparison): string[] {
-  const { tolerance, disagreements, rows } = comparison;
+  const { tolerance, disagreements, rows, measuredOnly } = comparison;
+  // the header counts every measured tensor; only those with a prediction can disagree with it: name the rest
+  const rest = measuredOnly.length === 0 ? "" : ` (the other ${measuredOnly.length} measured ${measuredOnly.length === 1 ? "is an inner tensor" : "are inner tensors"} with no prediction)`;
   const out = [
-    `Where prediction and measurement disagree (beyond ${tolerance.binades} binade in rms or ${tolerance.flushed} in the share zero after storage): ${disagreements.length} of ${rows.length} tensors`,
+    `Where prediction and measurement disagree (beyond ${tolerance.binades} binade in rms or ${tolerance.flushed} in the share zero after storage): ${disagreements.length} of the ${rows.length} tensors with a prediction${rest}`,
   ];
   const list = disagreements.slice(0, 20);
   for (const r of list) out.push(`  - ${describe(r)}`);
   if (disagreements.length > list.length) out.push(`  … and ${disagreements.length - list.length} more (see --json)`);
-  if (comparison.measuredOnly.length > 0) out.push(`  Measured only (no prediction for them): ${comparison.measuredOnly.length} inner tensor${comparison.measuredOnly.length === 1 ? "" : "s"}.`);
   return out;
 }
 

@@ -3,10 +3,11 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import { parseShrink } from "../../src/cli/simulate.js";
+import { parseShrink, renderSimulationText } from "../../src/cli/simulate.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { parseSpec } from "../../src/spec/index.js";
-import { shrinkSpec } from "../../src/simulate/index.js";
+import { shrinkSpec, simulate } from "../../src/simulate/index.js";
+import { predict } from "../../src/magnitude/index.js";
 import { runCli } from "../helpers/run.js";
 
 const dir = mkdtempSync(join(tmpdir(), "headroom-simulate-"));
@@ -253,5 +254,31 @@ describe("--shrink parsing", () => {
   it("takes one factor for widths, batch and positions, or named factors", () => {
     expect(parseShrink("4")).toEqual({ width: 4, batch: 4, positions: 4 });
     expect(parseShrink("width=2, classes=8")).toEqual({ width: 2, classes: 8 });
+  });
+});
+
+// a gated feed-forward's gate activation (and its gradient) is measured but has no prediction of its own
+const GATED = `name: gated
+input: { tokens: 8 }
+training: { batch: 2, loss: { kind: cross-entropy, classes: 3 } }
+layers:
+  - { type: embedding, vocabulary: 20, width: 8 }
+  - { type: gated-feed-forward, hidden: 16, activation: silu }
+  - { type: dense, width: 3 }
+`;
+
+describe("simulate's counts of tensors", () => {
+  it("says what the header and the disagreement summary each count: all measured, and those with a prediction", () => {
+    const parsed = parseSpec(GATED, "gated.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const report = simulate(parsed.spec, { predict, draws: 1 });
+    const measured = report.result.tensors.length;
+    const compared = report.comparison!.rows.length;
+    const inner = report.comparison!.measuredOnly.length;
+    expect(inner).toBeGreaterThan(0);
+    expect(compared + inner).toBe(measured);
+    const text = renderSimulationText(report);
+    expect(text).toMatch(new RegExp(`Tensors with findings or disagreements: \\d+ of the ${measured} measured `));
+    expect(text).toMatch(new RegExp(`: \\d+ of the ${compared} tensors with a prediction \\(the other ${inner} measured are inner tensors with no prediction\\)`));
   });
 });
