@@ -260,6 +260,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
   if (result.shrink.shrunk) {
     lines.push("", "Shrunk for speed:");
     for (const change of result.shrink.changes) lines.push(`  - ${change}`);
+    for (const warning of result.shrink.warnings) lines.push(`  - warning: ${warning}`);
     lines.push("  Predictions below are for the shrunk network (the same analytic rules); the full-size prediction is in the \"full size\" column.");
   }
   lines.push("");
@@ -605,7 +606,7 @@ export function renderSimulationHtml(report: SimulationReport): string {
       );
     })
     .join("\n");
-  const shrunk = result.shrink.shrunk ? `<p>Shrunk for speed: ${result.shrink.changes.map(escapeHtml).join("; ")}. Predictions are for the shrunk network.</p>` : "";
+  const shrunk = result.shrink.shrunk ? `<p>Shrunk for speed: ${result.shrink.changes.concat(result.shrink.warnings.map((w) => `warning: ${w}`)).map(escapeHtml).join("; ")}. Predictions are for the shrunk network.</p>` : "";
   return `<!doctype html>
 <html lang="en"><head><meta charset="utf-8">
 <meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'">

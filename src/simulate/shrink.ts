@@ -37,6 +37,12 @@ function outputLayer(layers: readonly LayerSpec[]): LayerSpec | undefined {
   return undefined;
 }
 
+function usesBatchNorm(spec: NetworkSpec): boolean {
+  const has = (list: readonly LayerSpec[]): boolean =>
+    list.some((l) => l.family === "batch-norm" || (l.family === "residual" && has(l.branch)) || (l.family === "repeat" && has(l.layers)));
+  return has(spec.layers) || Object.values(spec.blocks).some(has);
+}
+
 function scaleInit(init: InitSpec, factor: number): InitSpec {
   if (init.kind === "normal") return { ...init, std: init.std * factor };
   if (init.kind === "uniform") return { ...init, limit: init.limit * factor };
@@ -52,31 +58,42 @@ const fixedScale = (init: InitSpec): boolean => init.kind === "normal" || init.k
 export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = {}): { spec: NetworkSpec; report: ShrinkReport } {
   const f = shrinkFactors(partial);
   const shrunk = Object.values(f).some((v) => v > 1);
-  if (!shrunk) return { spec, report: { factors: f, changes: [], shrunk: false } };
+  if (!shrunk) return { spec, report: { factors: f, changes: [], warnings: [], shrunk: false } };
   const changes: string[] = [];
+  const warnings: string[] = [];
   const out = outputLayer(spec.layers);
+  // what each kind of width became, distinct "from → to" pairs in the order met, so the report says it
+  const sizes = new Map<string, Map<string, [number, number]>>();
+  const size = (kind: string, from: number, factor: number): number => {
+    const to = div(from, factor);
+    if (factor > 1) {
+      const seen = sizes.get(kind) ?? new Map<string, [number, number]>();
+      seen.set(`${from}`, [from, to]);
+      sizes.set(kind, seen);
+    }
+    return to;
+  };
   const originals = new Map<LayerSpec, LayerSpec>();
   const cloneList = (list: readonly LayerSpec[]): LayerSpec[] => list.map(cloneLayer);
   function cloneLayer(layer: LayerSpec): LayerSpec {
     let copy: LayerSpec;
     switch (layer.family) {
       case "dense": {
-        let width = div(layer.width, f.width);
-        if (layer === out) width = spec.training.loss.kind === "cross-entropy" ? div(layer.width, f.classes) : layer.width;
+        const width = layer !== out ? size("dense widths", layer.width, f.width) : spec.training.loss.kind === "cross-entropy" ? div(layer.width, f.classes) : layer.width;
         copy = { ...layer, width };
         break;
       }
       case "conv2d":
-        copy = { ...layer, channels: layer === out ? layer.channels : div(layer.channels, f.width) };
+        copy = { ...layer, channels: layer === out ? layer.channels : size("conv channels", layer.channels, f.width) };
         break;
       case "embedding":
-        copy = { ...layer, width: div(layer.width, f.width) };
+        copy = { ...layer, width: size("embedding widths", layer.width, f.width) };
         break;
       case "attention":
-        copy = { ...layer, heads: div(layer.heads, f.width) };
+        copy = { ...layer, heads: size("attention heads", layer.heads, f.width) };
         break;
       case "gated-feed-forward":
-        copy = { ...layer, hidden: div(layer.hidden, f.width) };
+        copy = { ...layer, hidden: size("gated hidden widths", layer.hidden, f.width) };
         break;
       case "residual":
         copy = { ...layer, branch: cloneList(layer.branch) };
@@ -97,7 +114,7 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
     training.loss = { ...training.loss, classes: div(training.loss.classes, f.classes) };
   }
   let input = spec.input;
-  if (input.kind === "features") input = { ...input, features: div(input.features, f.width), positions: div(input.positions, f.positions) };
+  if (input.kind === "features") input = { ...input, features: size("input features", input.features, f.width), positions: div(input.positions, f.positions) };
   else if (input.kind === "tokens") input = { ...input, positions: div(input.positions, f.positions) };
   else input = { ...input, height: div(input.height, f.image), width: div(input.width, f.image) };
   const result: NetworkSpec = { ...spec, input, training, blocks, layers: cloneList(spec.layers) };
@@ -136,23 +153,42 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   }
 
   if (f.width > 1) {
+    // each kind's sizes before → after (÷ rounded to the nearest whole number, at least 1), so an uneven factor shows what it did
+    const order = ["input features", "dense widths", "conv channels", "embedding widths", "attention heads", "gated hidden widths"];
+    const sorted = [...sizes].sort(([a], [b]) => order.indexOf(a) - order.indexOf(b));
+    const kinds = sorted.map(([kind, seen]) => {
+      const pairs = [...seen.values()];
+      const listed = pairs.slice(0, 4).map(([from, to]) => `${from} → ${to}`).join(", ");
+      return `${kind}${kind === "attention heads" ? " (head width kept)" : ""} ${listed}${pairs.length > 4 ? ` and ${pairs.length - 4} more` : ""}`;
+    });
     changes.push(
-      `widths ÷${f.width}: input features, dense widths, conv channels, embedding width, attention heads (head width kept) and gated hidden widths` +
+      `widths ÷${f.width}, rounded to the nearest whole number: ${kinds.length > 0 ? kinds.join("; ") : "no width to shrink"}` +
         (out !== undefined ? `; the output layer "${out.name}" keeps its width${spec.training.loss.kind === "cross-entropy" && f.classes > 1 ? " up to the class shrink" : ""}` : ""),
     );
+    const ones = sorted.flatMap(([kind, seen]) => [...seen.values()].filter(([from, to]) => from > 1 && to === 1).map(([from]) => `${kind} ${from} → 1`));
+    // one unit, or one head, is a different network from the full-size one: its comparison says little about the original
+    if (ones.length > 0) warnings.push(`widths ÷${f.width} leave sizes of 1 (${ones.join(", ")}): a one-unit layer or a single head behaves unlike the full-size network; a smaller factor keeps the comparison meaningful`);
   }
   if (rescaled > 0) changes.push(`fixed-scale initialisations (normal std, uniform limit) of ${rescaled} layer spec${rescaled === 1 ? "" : "s"} multiplied by √(fan-in ratio), so every layer keeps its gain fan_in·var_w`);
   if (training.batch !== spec.training.batch) changes.push(`batch ${spec.training.batch} → ${training.batch}`);
+  if (training.batch === 1 && spec.training.batch > 1) {
+    warnings.push(`batch ${spec.training.batch} → 1: one sample per step${usesBatchNorm(spec) ? "; batch norm over one sample's features sets them to their mean" : ""}, unlike the full-size run`);
+  }
   if (spec.input.kind !== "image" && input.kind !== "image" && input.positions !== spec.input.positions) {
     changes.push(`positions ${spec.input.positions} → ${input.positions}`);
   }
   if (f.classes > 1 && spec.training.loss.kind === "cross-entropy") {
+    const classes = (training.loss as { classes: number }).classes;
+    // softmax over one class is 1 whatever the score: the loss is 0 and no gradient flows (own algebra: ∂/∂z of −log 1)
+    if (classes === 1 && spec.training.loss.classes > 1) {
+      throw new RangeError(`shrinking classes ${spec.training.loss.classes} by ${f.classes} leaves 1 class, whose cross-entropy is 0 with no gradient; give a classes factor of at most ${Math.floor(spec.training.loss.classes / 2)}`);
+    }
     changes.push(`classes ${spec.training.loss.classes} → ${(training.loss as { classes: number }).classes}`);
   }
   if (f.image > 1 && spec.input.kind === "image" && input.kind === "image") {
     changes.push(`image ${spec.input.height}×${spec.input.width} → ${input.height}×${input.width}`);
   }
-  return { spec: result, report: { factors: f, changes, shrunk: true } };
+  return { spec: result, report: { factors: f, changes, warnings, shrunk: true } };
 }
 
 /** Elements held by one layer's forward state and its gradients, besides its output. */

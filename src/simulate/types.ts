@@ -154,6 +154,8 @@ export interface ShrinkReport {
   factors: ShrinkFactors;
   /** plain sentences, one per change */
   changes: string[];
+  /** plain sentences, one per size that fell so far (to 1) that the shrunk network behaves unlike the full-size one */
+  warnings: string[];
   /** true when any factor is above 1 */
   shrunk: boolean;
 }

@@ -282,3 +282,38 @@ describe("simulate's counts of tensors", () => {
     expect(text).toMatch(new RegExp(`: \\d+ of the ${compared} tensors with a prediction \\(the other ${inner} measured are inner tensors with no prediction\\)`));
   });
 });
+
+describe("what --shrink did, in numbers", () => {
+  it("names each kind of width before and after, an uneven factor rounded to the nearest whole number", () => {
+    const parsed = parseSpec(GATED.replace("hidden: 16", "hidden: 10"), "gated.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const { report } = shrinkSpec(parsed.spec, { width: 3 });
+    // 8 / 3 = 2.67 → 3 and 10 / 3 = 3.33 → 3 (nearest whole number)
+    expect(report.changes[0]).toBe('widths ÷3, rounded to the nearest whole number: embedding widths 8 → 3; gated hidden widths 10 → 3; the output layer "dense-2" keeps its width');
+    expect(report.warnings).toEqual([]);
+  });
+
+  it("warns when a width, a head count or the batch falls to 1, naming batch norm when it has one sample", () => {
+    const parsed = parseSpec(SMALL.replace("  - relu\n", "  - batch-norm\n  - relu\n"), "small.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const { report } = shrinkSpec(parsed.spec, { width: 1000, batch: 1000 });
+    expect(report.changes[0]).toContain("input features 16 → 1; dense widths 32 → 1");
+    expect(report.warnings[0]).toContain("widths ÷1000 leave sizes of 1 (input features 16 → 1, dense widths 32 → 1)");
+    expect(report.warnings[1]).toBe("batch 8 → 1: one sample per step; batch norm over one sample's features sets them to their mean, unlike the full-size run");
+  });
+
+  it("refuses a class shrink that leaves one class, whose cross-entropy has no gradient, and says it from the command line", () => {
+    const parsed = parseSpec(SMALL, "small.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    expect(() => shrinkSpec(parsed.spec, { classes: 4 })).toThrow("shrinking classes 4 by 4 leaves 1 class, whose cross-entropy is 0 with no gradient; give a classes factor of at most 2");
+    expect(shrinkSpec(parsed.spec, { classes: 2 }).report.changes).toContain("classes 4 → 2");
+    const run = runCli(["simulate", specFile("small.yaml", SMALL), "--shrink", "classes=4"]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toMatch(/small\.yaml: shrinking classes 4 by 4 leaves 1 class/);
+  });
+
+  it("prints the warnings under what was shrunk", () => {
+    const run = runCli(["simulate", specFile("small.yaml", SMALL), "--shrink", "width=64"]);
+    expect(run.stdout).toContain("  - warning: widths ÷64 leave sizes of 1 (input features 16 → 1, dense widths 32 → 1)");
+  });
+});
