@@ -176,6 +176,8 @@ export interface CastCounts {
   subnormal: number;
   saturated: number;
   overflowed: number;
+  /** NaNs and infinities of the file that stay non-finite after the cast: the file's, not the cast's doing */
+  nonFiniteInFile: number;
 }
 
 /** The raw statistics of one tensor, before verdicts and scales are derived. */
@@ -427,11 +429,16 @@ export class TensorAccumulator {
       for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
       return false;
     }
-    for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
     if (x === Infinity || x === -Infinity) {
+      // an infinity is not an overflow of the cast: it stays one, unless a saturating cast clips it
+      for (let t = 0; t < targets.length; t++) {
+        const cls = targets[t]!.classify(x);
+        counts[t * CAST_CLASS_COUNT + (cls === CAST_CLASS.overflowed ? CAST_CLASS.nan : cls)]! += 1;
+      }
       this.infinities++;
       return false;
     }
+    for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + targets[t]!.classify(x)]! += 1;
     this.binadeExtra[binadeOf(Math.abs(x)) + BINADE_OFFSET]! += 1;
     return true;
   }
@@ -460,6 +467,7 @@ export class TensorAccumulator {
         subnormal: at(CAST_CLASS.subnormal),
         saturated: at(CAST_CLASS.saturated),
         overflowed: at(CAST_CLASS.overflowed),
+        nonFiniteInFile: at(CAST_CLASS.nan),
       };
     });
     const nonzeroFinite = this.elements - this.zeros - this.infinities - this.nans;

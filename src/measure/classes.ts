@@ -14,9 +14,9 @@ export const CAST_CLASS = {
   flushed: 3,
   /** a value beyond the target's range (or an infinity) clamped to ±largest finite by a saturating conversion */
   saturated: 4,
-  /** a value (or an infinity) that becomes ±infinity or NaN */
+  /** a finite value that becomes ±infinity or NaN */
   overflowed: 5,
-  /** a NaN, which stays NaN */
+  /** non-finite in the file already and after the cast: a NaN, or an infinity the cast keeps infinite (not an overflow of the cast) */
   nan: 6,
 } as const;
 export type CastClass = (typeof CAST_CLASS)[keyof typeof CAST_CLASS];

@@ -46,6 +46,11 @@ export async function openTensorFile(path: string): Promise<{ ok: true; file: Op
       await handle.close();
       return { ok: false, issue: { file: path, message: notNpyMessage(first) }, size };
     }
+    // a file of another kind (a spec, a table) would otherwise be read as a safetensors header length of its first 8 bytes
+    if (!isNpy && !/\.safetensors$/i.test(path) && !looksLikeSafetensors(first, size)) {
+      await handle.close();
+      return { ok: false, issue: { file: path, message: notTensorFileMessage(first) }, size };
+    }
     const parsed = isNpy ? await readNpyLayout(handle, path, first, size) : await readSafetensorsLayout(handle, path, first, size);
     if (!parsed.ok) {
       await handle.close();
@@ -82,6 +87,12 @@ function notNpyMessage(first: Uint8Array): string {
   const shown = [...first.subarray(0, 6)].map((b) => b.toString(16).padStart(2, "0")).join(" ");
   const start = first.length === 0 ? "it is empty" : `it starts with ${shown}`;
   return `not a .npy array: it does not start with NumPy's magic "\\x93NUMPY" (${start}), nor is it a safetensors file`;
+}
+
+function notTensorFileMessage(first: Uint8Array): string {
+  const shown = [...first.subarray(0, 6)].map((b) => b.toString(16).padStart(2, "0")).join(" ");
+  const start = first.length === 0 ? "it is empty" : `it starts with ${shown}`;
+  return `not a safetensors file or a .npy array: it starts with neither a safetensors header (an 8-byte length, then "{") nor NumPy's magic "\\x93NUMPY" (${start})`;
 }
 
 async function readSafetensorsLayout(handle: FileHandle, path: string, first: Uint8Array, size: number) {

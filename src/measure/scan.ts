@@ -42,8 +42,10 @@ export interface CastResult {
   subnormal: number;
   /** values clamped to ±largest finite (saturating conversion), infinities included */
   saturated: number;
-  /** values that become ±infinity or NaN (non-saturating conversion), infinities included; NaNs are counted apart */
+  /** finite values that become ±infinity or NaN (non-saturating conversion) */
   overflowed: number;
+  /** NaNs and infinities already in the file that stay non-finite after the cast (not counted as overflowed) */
+  nonFiniteInFile: number;
   verdict: CastVerdict;
   /** the power-of-two scales that make the tensor fit; null when it has no nonzero finite value */
   scales: ScaleRange | null;
@@ -189,7 +191,7 @@ function measureOf(
     const counts = tally.casts[t]!;
     const lost = counts.flushed + counts.saturated;
     const verdict: CastVerdict =
-      counts.overflowed + tally.nans > 0 ? "breaks" : lost > tolerance * nonzeroFinite ? "lossy" : "safe";
+      counts.overflowed + counts.nonFiniteInFile > 0 ? "breaks" : lost > tolerance * nonzeroFinite ? "lossy" : "safe";
     return {
       format: target.format,
       overflow: target.overflow,

@@ -43,6 +43,7 @@ export function scalesText(cast: CastResult): string {
 export function verdictText(cast: CastResult, style: Style = PLAIN): string {
   const parts: string[] = [];
   if (cast.overflowed > 0) parts.push(`${formatCount(cast.overflowed)} overflow`);
+  if (cast.nonFiniteInFile > 0) parts.push(`${formatCount(cast.nonFiniteInFile)} inf/nan in the file`);
   if (cast.saturated > 0) parts.push(`${formatCount(cast.saturated)} clipped`);
   if (cast.flushed > 0) parts.push(`${formatCount(cast.flushed)} flushed`);
   const role = cast.verdict === "safe" ? "fits" : cast.verdict === "lossy" ? "risk" : "fails";
@@ -124,6 +125,7 @@ export function renderScanTable(result: ScanResult, options: ScanRenderOptions =
         { title: "subnormal", align: "right" },
         { title: "overflowed", align: "right" },
         { title: "clipped", align: "right" },
+        { title: "inf/nan in file", align: "right" },
         { title: "scales that fit" },
       ],
       shown.flatMap((t) =>
@@ -135,6 +137,7 @@ export function renderScanTable(result: ScanResult, options: ScanRenderOptions =
           formatCount(c.subnormal),
           formatCount(c.overflowed),
           formatCount(c.saturated),
+          formatCount(c.nonFiniteInFile),
           scalesText(c),
         ]),
       ),
@@ -172,6 +175,7 @@ export const SCAN_CSV_COLUMNS = [
   "subnormal",
   "overflowed",
   "saturated",
+  "non_finite_in_file",
   "lowest_scale_log2",
   "lowest_normal_scale_log2",
   "highest_scale_log2",
@@ -184,7 +188,7 @@ export function renderScanCsv(result: ScanResult, options: ScanRenderOptions = {
     for (const t of file.tensors) {
       if (!options.all && !hasFindings(t)) continue;
       const base = [file.file, t.name, t.dtype, t.shape.join("x"), t.elements, t.zeros, t.infinities, t.nans, t.minNonzero, t.maxAbs, t.rms, t.maxOverRms];
-      if (t.casts.length === 0) rows.push([...base, null, null, null, null, null, null, null, null, null, null]);
+      if (t.casts.length === 0) rows.push([...base, null, null, null, null, null, null, null, null, null, null, null]);
       for (const c of t.casts) {
         rows.push([
           ...base,
@@ -195,6 +199,7 @@ export function renderScanCsv(result: ScanResult, options: ScanRenderOptions = {
           c.subnormal,
           c.overflowed,
           c.saturated,
+          c.nonFiniteInFile,
           c.scales?.lowest ?? null,
           c.scales?.lowestNormal ?? null,
           c.scales?.highest ?? null,

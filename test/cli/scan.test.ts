@@ -127,3 +127,17 @@ describe("headroom scan", () => {
     expect(runCli(["scan", risky]).stderr).toBe("");
   });
 });
+
+describe("non-finite values and files of another kind", () => {
+  it("an infinity or NaN already in the file is counted apart from the cast's overflow, in its own cast column", () => {
+    // 7e4 overflows binary16 (largest finite 65504, IEEE 754-2019 Table 3.5); the infinity and the NaN were in the file
+    const path = files.write("spoilt.safetensors", safetensorsBytes([{ name: "w", dtype: "F32", shape: [4], data: encode("F32", [7e4, Infinity, NaN, 1]) }]));
+    const run = runCli(["scan", path, "--to", "binary16", "--json"]);
+    expect(run.status).toBe(1);
+    const cast = JSON.parse(run.stdout).files[0].tensors[0].casts[0];
+    expect(cast).toMatchObject({ overflowed: 1, nonFiniteInFile: 2, verdict: "breaks" });
+    const text = runCli(["scan", path, "--to", "binary16"]).stdout;
+    expect(text).toMatch(/overflowed\s+clipped\s+inf\/nan in file/);
+    expect(text).toMatch(/w\s+binary16\s+breaks\s+0\s+0\s+1\s+0\s+2/);
+  });
+});

@@ -71,11 +71,12 @@ const FLUSHING: CastTarget[] = NAMES.map((n) => castTarget(n, { flushSubnormals:
 /** The counts CastResult defines, element by element with roundTo. */
 function reference(target: CastTarget, values: Float32Array) {
   const f = FORMATS[target.format as FormatName];
-  const out = { flushed: 0, subnormal: 0, saturated: 0, overflowed: 0 };
+  const out = { flushed: 0, subnormal: 0, saturated: 0, overflowed: 0, nonFiniteInFile: 0 };
   for (const x of values) {
-    if (Number.isNaN(x)) continue;
     const r = roundTo(f, x, { overflow: target.overflow });
-    if (!Number.isFinite(r)) out.overflowed++;
+    // non-finite in the file and after the cast: not the cast's overflow
+    if (!Number.isFinite(x) && !Number.isFinite(r)) out.nonFiniteInFile++;
+    else if (!Number.isFinite(r)) out.overflowed++;
     else if (!Number.isFinite(roundTo(f, x, { overflow: "infinity-or-nan" }))) out.saturated++;
     else if (x !== 0 && r === 0) out.flushed++;
     else if (r !== 0 && Math.abs(r) < f.minNormal) {
