@@ -140,4 +140,12 @@ describe("non-finite values and files of another kind", () => {
     expect(text).toMatch(/overflowed\s+clipped\s+inf\/nan in file/);
     expect(text).toMatch(/w\s+binary16\s+breaks\s+0\s+0\s+1\s+0\s+2/);
   });
+
+  it("a file that is neither safetensors nor .npy (a YAML spec) is named as such, not read as a header length", () => {
+    const path = files.write("spec.yaml", new TextEncoder().encode("name: tiny\ninput: { features: 4 }\n"));
+    const run = runCli(["scan", path]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toContain(`${path}: not a safetensors file or a .npy array: it starts with neither a safetensors header (an 8-byte length, then "{") nor NumPy's magic "\\x93NUMPY" (it starts with 6e 61 6d 65 3a 20)`);
+    expect(run.stderr).not.toContain("header length");
+  });
 });
