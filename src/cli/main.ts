@@ -2,7 +2,7 @@ import { Command, CommanderError } from "commander";
 import { didYouMean } from "../spec/issues.js";
 import { UserError, EXIT, takeExitCode } from "./errors.js";
 import { commands } from "./commands.js";
-import { commandPath, unknownOptionMessage } from "./commands/define.js";
+import { commandPath, refuseRepeatedOptions, unknownOptionMessage } from "./commands/define.js";
 
 /**
  * Build the commander program with every command registered. The parser's own errors (an unknown option or
@@ -24,6 +24,7 @@ export function buildProgram(): Command {
     .exitOverride();
   for (const register of commands) register(program);
   for (const command of [program, ...program.commands]) {
+    refuseRepeatedOptions(command);
     command.exitOverride((error) => {
       throw isUsageError(error) ? new UserError(parserMessage(error, command, program)) : error;
     });

@@ -37,6 +37,11 @@ const CASES: [string[], string][] = [
   ],
   [["check", SPEC, SPEC], "headroom: too many arguments: headroom check takes 1, got 2; usage: headroom check [options] <spec>"],
   [["check", SPEC, "--md", "--json"], "headroom: --md cannot be used with --json"],
+  // an option with one value given twice: the parser would keep the last silently
+  [["check", SPEC, "--plan", "all-bfloat16", "--plan", "mixed-binary16"], 'headroom: --plan is given twice ("all-bfloat16", then "mixed-binary16"); give it once'],
+  [["simulate", SPEC, "--plan=all-bfloat16", "--plan", "x"], 'headroom: --plan is given twice ("all-bfloat16", then "x"); give it once'],
+  [["simulate", SPEC, "--seed", "1", "--seed", "1"], 'headroom: --seed is given twice ("1", then "1"); give it once'],
+  [["scan", "x.npy", "--to", "binary16", "--to", "e4m3"], 'headroom: --to is given twice ("binary16", then "e4m3"); give it once'],
 ];
 
 describe("parser errors (the built binary)", () => {
@@ -49,6 +54,12 @@ describe("parser errors (the built binary)", () => {
       expect(run.stderr).not.toMatch(STACK);
     });
   }
+
+  it("a repeatable option (--format) and a repeated flag are still taken", () => {
+    const run = runCli(["check", SPEC, "--format", "binary16", "--format", "bfloat16", "--json", "--json"]);
+    expect(run.stderr).toBe("");
+    expect(JSON.parse(run.stdout)).toBeTypeOf("object");
+  });
 
   it("help and version are not errors: stdout, exit 0, and help for a bare headroom still goes to stderr with exit 2", () => {
     for (const args of [["--help"], ["check", "--help"], ["round", "--help"], ["help", "scan"]]) {

@@ -1,6 +1,7 @@
 /** The parts several command definitions share, so each file of src/cli/commands/ says only what is its own. */
 import { Option, type Command } from "commander";
 import { closestWord } from "../../spec/issues.js";
+import { UserError } from "../errors.js";
 
 /**
  * The action of a command: imports the command's run (src/cli/<command>.ts) only when the command runs, so `--help`
@@ -20,9 +21,31 @@ export function planOption(use: string, whose = "the spec's"): Option {
   return new Option("--plan <name>", `${use} this plan of ${whose} \`plans\` instead of its \`precision\``);
 }
 
+/** Options that may be given several times (their values collected); every other option with a value is given once. */
+const REPEATABLE = new WeakSet<Option>();
+
 /** An option that may be given several times: its values in the order given. */
 export function repeatable(option: Option): Option {
+  REPEATABLE.add(option);
   return option.argParser((value: string, previous: string[] | undefined) => [...(previous ?? []), value]);
+}
+
+/**
+ * Refuse an option with one value given twice (`--plan a --plan b`), which the parser would settle silently for the
+ * last: which one the user meant is theirs to say. Flags (no value) and repeatable options may repeat. Listens on the
+ * command being built, so each parse counts afresh.
+ */
+export function refuseRepeatedOptions(command: Command): void {
+  for (const option of command.options) {
+    if (REPEATABLE.has(option) || option.variadic || !(option.required || option.optional)) continue;
+    let given: string | undefined;
+    command.on(`option:${option.name()}`, (value: string) => {
+      if (given !== undefined) {
+        throw new UserError(`${option.long ?? option.flags} is given twice (${JSON.stringify(given)}, then ${JSON.stringify(value)}); give it once`);
+      }
+      given = value;
+    });
+  }
 }
 
 /** The `--vary` option, as `check` and `batch` take it (repeatable). */
