@@ -27,7 +27,8 @@ function worse(a: Finding, b: Finding): Finding {
 
 /**
  * The verdict of a set of findings (fits when empty), and one reason per kind: the worst finding's sentence,
- * and how many more subjects share the kind. Ordered: fails before at risk, then by the catalogue order.
+ * and how many more subjects share the kind. Ordered: fails before at risk, then the kinds covering more subjects, then
+ * values past a limit before thin margins (little headroom), then the catalogue order.
  * @example judge([]) // => { verdict: "fits", reasons: [] }
  */
 export function judge(findings: readonly Finding[]): Judgement {
@@ -43,9 +44,15 @@ export function judge(findings: readonly Finding[]): Judgement {
       group.subjects.add(finding.subject);
     }
   }
+  // what matters to the user first: the worse severity, then the reason covering more subjects, then a value past a
+  // limit before a margin that is only thin (little headroom is still inside the range), then the catalogue's order
+  const margin = (kind: FindingKind): number => (LARGER_IS_BETTER.has(kind) ? 1 : 0);
   const ordered = [...groups.entries()].sort(
     ([kindA, a], [kindB, b]) =>
-      VERDICT_RANK[b.worst.severity] - VERDICT_RANK[a.worst.severity] || FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
+      VERDICT_RANK[b.worst.severity] - VERDICT_RANK[a.worst.severity] ||
+      b.subjects.size - a.subjects.size ||
+      margin(kindA) - margin(kindB) ||
+      FINDING_KINDS.indexOf(kindA) - FINDING_KINDS.indexOf(kindB),
   );
   const reasons = ordered.map(([kind, group]) => {
     const others = group.subjects.size - 1;
