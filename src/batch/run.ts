@@ -37,7 +37,7 @@ export function planBatch(inputs: readonly BatchInput[], variants: readonly Vari
           file: input.argument,
           variant: null,
           status: "error",
-          error: oneProblem("input", input.message, { file: input.argument }),
+          error: { ...oneProblem("input", input.message, { file: input.argument }), argument: true },
         },
       });
       continue;

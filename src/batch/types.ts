@@ -80,6 +80,8 @@ export interface RowError {
    * script reads one shape on every error row
    */
   issues: { message: string; position: ErrorPosition }[];
+  /** the row is a path argument that named no spec file (no such file, an empty folder, a pattern matching nothing) */
+  argument?: true;
 }
 
 /** A row error that is one problem: `issues` holds it alone. */

@@ -16,18 +16,26 @@ export const ESTIMATE_NOTE = "Predictions are estimates, not guarantees; confirm
 
 /** Counts of a batch, for the closing line and for scripts. */
 export interface BatchCounts {
+  /** rows of spec files (a spec once per variant) */
   total: number;
   fits: number;
   atRisk: number;
   fails: number;
   inputErrors: number;
   internalErrors: number;
+  /** path arguments that named no spec file: not specs, counted apart (their rows are input errors for the exit code) */
+  unmatched: number;
 }
 
 /** Count rows by outcome. */
 export function countRows(rows: readonly BatchRow[]): BatchCounts {
-  const counts: BatchCounts = { total: rows.length, fits: 0, atRisk: 0, fails: 0, inputErrors: 0, internalErrors: 0 };
+  const counts: BatchCounts = { total: 0, fits: 0, atRisk: 0, fails: 0, inputErrors: 0, internalErrors: 0, unmatched: 0 };
   for (const row of rows) {
+    if (row.status === "error" && row.error.argument === true) {
+      counts.unmatched += 1;
+      continue;
+    }
+    counts.total += 1;
     if (row.status === "error") {
       if (row.error.kind === "input") counts.inputErrors += 1;
       else counts.internalErrors += 1;
@@ -100,13 +108,17 @@ function paintVerdict(style: Style, verdict: SummaryVerdict | "error", text = ve
   return style.role(role, text);
 }
 
-/** One line counting the outcomes, e.g. "200 specs: 150 fit, 30 at risk, 15 fail, 5 could not be evaluated". */
+/**
+ * One line counting the outcomes, e.g. "200 specs: 150 fit, 30 at risk, 15 fail, 5 could not be evaluated; 1 argument
+ * named no spec file" (a pattern that matched nothing is not a spec).
+ */
 export function batchCountLine(rows: readonly BatchRow[]): string {
   const c = countRows(rows);
   const parts = [`${c.fits} fit`, `${c.atRisk} at risk`, `${c.fails} fail`];
   const errors = c.inputErrors + c.internalErrors;
   if (errors > 0) parts.push(`${errors} could not be evaluated`);
-  return `${c.total} ${c.total === 1 ? "spec" : "specs"}: ${parts.join(", ")}`;
+  const unmatched = c.unmatched > 0 ? `; ${c.unmatched} ${c.unmatched === 1 ? "argument" : "arguments"} named no spec file` : "";
+  return `${c.total} ${c.total === 1 ? "spec" : "specs"}: ${parts.join(", ")}${unmatched}`;
 }
 
 /** Every warning of the rows, one line each, with the variant it came from. */

@@ -114,6 +114,8 @@ describe("runBatch (worker threads; run npm run build first)", () => {
     ]);
     const broken = rows[2]!;
     expect(broken.status === "error" && broken.error.position).toEqual({ file: files[2], line: 4, column: 10 });
+    // the pattern that matched nothing is marked as an argument, not a spec: the count line keeps it apart
+    expect(rows.map((r) => r.status === "error" && r.error.argument === true)).toEqual([false, false, false, true, false, false, false]);
     const crashed = rows[5]!;
     expect(crashed.status === "error" && crashed.error.message).toMatch(/worker stopped: exited with code 9/);
     // every error row lists its problems, one or more, in one shape (README, batch --jsonl): a pattern that matches

@@ -196,8 +196,27 @@ describe("warnings of specs judged as written", () => {
 
 describe("countRows / batchCountLine", () => {
   test("counts outcomes", () => {
-    expect(countRows(ROWS)).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0 });
+    expect(countRows(ROWS)).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0, unmatched: 0 });
     expect(batchCountLine([ROWS[0]!])).toBe("1 spec: 1 fit, 0 at risk, 0 fail");
+  });
+
+  test("a path argument that named no spec file is not counted as a spec", () => {
+    const unmatched: BatchRow = {
+      index: 4,
+      file: "nothing/*.yaml",
+      variant: null,
+      status: "error",
+      error: {
+        kind: "input",
+        message: "nothing/*.yaml: no file matches this pattern",
+        position: { file: "nothing/*.yaml" },
+        issues: [{ message: "nothing/*.yaml: no file matches this pattern", position: { file: "nothing/*.yaml" } }],
+        argument: true,
+      },
+    };
+    expect(countRows([...ROWS, unmatched])).toEqual({ total: 4, fits: 1, atRisk: 1, fails: 1, inputErrors: 1, internalErrors: 0, unmatched: 1 });
+    expect(batchCountLine([ROWS[0]!, unmatched])).toBe("1 spec: 1 fit, 0 at risk, 0 fail; 1 argument named no spec file");
+    expect(batchCountLine([ROWS[0]!, unmatched, { ...unmatched, index: 5 }])).toBe("1 spec: 1 fit, 0 at risk, 0 fail; 2 arguments named no spec file");
   });
 });
 
