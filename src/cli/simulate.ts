@@ -102,7 +102,14 @@ function simulationBuilds(path: string, loaded: Extract<SpecResult, { ok: true }
       throw error;
     }
   }
-  const shrunk = shrinkSpec(loaded.spec, shrink);
+  let shrunk: ReturnType<typeof shrinkSpec>;
+  try {
+    shrunk = shrinkSpec(loaded.spec, shrink);
+  } catch (error) {
+    // a shrink that would change what the network is (one class left) is refused as bad input
+    if (error instanceof RangeError) throw new UserError(`${path}: ${error.message}`);
+    throw error;
+  }
   const built = buildGraph(shrunk.spec);
   if (built.ok) return true;
   const after = shrunk.report.shrunk ? "after --shrink: " : "";
