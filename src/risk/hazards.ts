@@ -11,6 +11,7 @@ import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
+import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
 import { distinctNumbers, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
@@ -273,12 +274,8 @@ export function evaluateHazard(
   };
 }
 
-function verdictRank(verdict: Verdict): number {
-  return verdict === "fails" ? 2 : verdict === "at-risk" ? 1 : 0;
-}
-
 function isWorse(a: Draft, b: Draft): boolean {
-  const rank = verdictRank(a.verdict) - verdictRank(b.verdict);
+  const rank = VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict];
   return rank > 0 || (rank === 0 && a.value > b.value);
 }
 

@@ -5,7 +5,7 @@
 import type { Format } from "../formats/index.js";
 import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, type RangeLimits, type RiskThresholds } from "../risk/index.js";
+import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, worseVerdict, type RangeLimits, type RiskThresholds } from "../risk/index.js";
 import {
   flushedSecondMoments,
   flushedSecondMomentsVerdict,
@@ -491,7 +491,7 @@ function summarise(
   // returns the sentence that says so
   const raise = (v: OptimizerVerdict, format: Format): string => {
     if (judged !== undefined && !judged.includes(format.name)) return ` ${notCountedSentence(format.name)}`;
-    if (v === "fails" || (v === "at-risk" && verdict === "fits")) verdict = v;
+    verdict = worseVerdict(verdict, v);
     return "";
   };
   // a share below the risk sentences' display floor reads as they do ("less than 1e-6%"), not as the model's far tail
