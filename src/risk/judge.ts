@@ -65,6 +65,11 @@ export interface FormatCheck {
   planned: boolean;
   /** the plan entries the format holds when it is judged */
   holds: PlanEntry[];
+  /**
+   * an 8-bit format only: the scale factors it was judged with, the plan's own, or the spec's default (per-tensor) for an
+   * 8-bit format standing in for a plan that holds none (`planFor`), which the top-level `plan` does not show
+   */
+  scaling?: PrecisionPlan["scaling"];
   /** present when the format was judged at another loss scale than the result's `lossScale` (its own gradients' window, or none) */
   lossScale?: AppliedLossScale;
   verdict: Verdict;
@@ -649,6 +654,7 @@ function judgeFormat(
     format,
     planned: evaluated === plan,
     holds,
+    ...(FORMATS[format].bits === 8 ? { scaling: evaluated.scaling } : {}),
     ...(ownScale === undefined ? {} : { lossScale: ownScale }),
     verdict: judgement.verdict,
     reasons: judgement.reasons,

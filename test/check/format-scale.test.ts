@@ -235,6 +235,12 @@ describe("what-if 8-bit formats take the spec's default scale factors", () => {
     expect(e4m3(whatIf).verdict).toBe(e4m3(planned).verdict);
     expect(e4m3(whatIf).findings.map((f) => f.sentence)).toEqual(e4m3(planned).findings.map((f) => f.sentence));
     expect(whatIf.lossScaleAnswer).toBeNull();
+    // the result says which scale factors the what-if was judged with, which its top-level plan (as written) does not
+    expect(whatIf.plan.scaling).toBe("none");
+    expect(e4m3(whatIf).scaling).toBe("tensor");
+    expect(e4m3(planned).scaling).toBe("tensor");
+    expect(whatIf.formats.find((f) => f.format === "binary16")).toBeUndefined();
+    expect(check(cnn).formats.every((f) => f.scaling === undefined)).toBe(true);
     const risks = (result: CheckAnswer) => result.tensors.map((t) => t.risks.filter((r) => r.format === "e4m3").map(numbers));
     expect(risks(whatIf)).toEqual(risks(planned));
   });
