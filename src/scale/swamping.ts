@@ -25,35 +25,21 @@ interface SharesByExponent {
 }
 
 /**
- * `fractionBelow(profile, ·)` specialised once per profile. Without a draw spread the element law is read at the
- * profile's rms directly, which is what the draw integral reduces to (src/risk/profile.ts): no law lookup, no
- * integrand closure per threshold. With a spread, the draw integral itself.
+ * `fractionBelow(profile, ·)` (`energy`: `energyBelow`, the share of the squared norm carried by elements at or below t)
+ * specialised once per profile. Without a draw spread the element law is read at the profile's rms directly, which is
+ * what the draw integral reduces to (src/risk/profile.ts): no law lookup, no integrand closure per threshold. With a
+ * spread, the draw integral itself. Constant-like elements (every nonzero one equals the scale): a step at the rms,
+ * their energy share equal to their count.
  */
-export function shareBelow(profile: MagnitudeProfile): (t: number) => number {
-  if (profile.log2Spread > 0) return (t) => fractionBelow(profile, t);
-  if (!(profile.rms > 0) || !(nonzeroElements(profile) > 0)) return () => 0;
-  const r = profile.rms;
-  // constant-like (every nonzero element equals the scale): a step at the rms, as fractionBelow has it
-  if (profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0))) {
-    return (t) => (r <= t ? 1 : 0);
-  }
-  const law = elementLaw(profile);
-  return (t) => law.below(r, t);
-}
-
-/**
- * `energyBelow(profile, ·)`, the share of the squared norm carried by elements with |Δ| ≤ t, specialised once per
- * profile as {@link shareBelow} is (constant-like elements: the step at the rms, their energy share equals their count).
- */
-export function energyShareBelow(profile: MagnitudeProfile): (t: number) => number {
-  if (profile.log2Spread > 0) return (t) => energyBelow(profile, t);
+export function shareBelow(profile: MagnitudeProfile, energy = false): (t: number) => number {
+  if (profile.log2Spread > 0) return energy ? (t) => energyBelow(profile, t) : (t) => fractionBelow(profile, t);
   if (!(profile.rms > 0) || !(nonzeroElements(profile) > 0)) return () => 0;
   const r = profile.rms;
   if (profile.shape === "constant" || (profile.shape === "log-normal" && !((profile.elementLog2Spread ?? 0) > 0))) {
     return (t) => (r <= t ? 1 : 0);
   }
   const law = elementLaw(profile);
-  return (t) => law.energyBelow(r, t);
+  return energy ? (t) => law.energyBelow(r, t) : (t) => law.below(r, t);
 }
 
 // Binades summed: 40 below the weight's rms binade (lighter than any share we report) to 12 above it.
@@ -200,7 +186,7 @@ const weightEntry = (weight: MagnitudeProfile): WeightEntry =>
   entryOf(WEIGHTS, weight, weight.zeroFraction, (law) => ({ law, binades: law.rms > 0 ? weightBinades(law) : null }));
 
 const updateEntry = (update: MagnitudeProfile): UpdateEntry =>
-  entryOf(UPDATES, update, 0, (law) => ({ law, shares: new UpdateShares(energyShareBelow(law)), sums: new Map() }));
+  entryOf(UPDATES, update, 0, (law) => ({ law, shares: new UpdateShares(shareBelow(law, true)), sums: new Map() }));
 
 /**
  * The swamping sums of one assessment against a fixed list of formats. Weights of equal laws (the layers of one
