@@ -185,15 +185,9 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
   const worst = worseOf(start, end);
   let mass: FlushedMass | null = null;
   if (isProbabilityRow(tensor)) {
-    const startMass = flushedMass(scaled.start, startScaleLog2, start, limits);
-    const startSubnormal = subnormalMass(scaled.start, startScaleLog2, start, limits);
-    const same = scaled.same && startScaleLog2 === endScaleLog2;
-    mass = {
-      start: startMass,
-      end: same ? startMass : flushedMass(scaled.end, endScaleLog2, end, limits),
-      subnormalStart: startSubnormal,
-      subnormalEnd: same ? startSubnormal : subnormalMass(scaled.end, endScaleLog2, end, limits),
-    };
+    const first = rowMass(scaled.start, startScaleLog2, start, limits);
+    const last = scaled.same && startScaleLog2 === endScaleLog2 ? first : rowMass(scaled.end, endScaleLog2, end, limits);
+    mass = { start: first[0], end: last[0], subnormalStart: first[1], subnormalEnd: last[1] };
   }
   const findings = tensorFindings(tensor, limits, worst, start, end, options, mass);
   return {
@@ -211,7 +205,7 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
 /**
  * Whether a tensor is a row of softmax probabilities: an activation whose elements are log-normal and capped (the
  * engine's softmax and attention probabilities, bound 1). Its flushed elements are judged by the probability mass they
- * carry ({@link flushedMass}), not by their count.
+ * carry ({@link rowMass}), not by their count.
  */
 export function isProbabilityRow(tensor: Pick<TensorPrediction, "role" | "start">): boolean {
   const p = tensor.start;
@@ -230,7 +224,9 @@ interface FlushedMass {
 }
 
 /**
- * Share of the first moment Σ|x| carried by the elements that round to zero, over draws: E[|x|·1{|x| ≤ t}]/E[|x|].
+ * Shares of the first moment Σ|x| carried by the elements that round to zero and by those that round to a subnormal
+ * (between the flush bound and the smallest normal: their precision is what a subnormal costs), over draws:
+ * E[|x|·1{|x| ≤ t}]/E[|x|].
  * For a probability row (Σ p = 1) it is the probability mass a flush takes from the row, and so the largest relative
  * change of the weighted average Σ p_j·v_j. Log-normal elements, log2|x| ~ N(m, s²) with m set by the rms (ln|x| ~
  * N(μ, σ²), σ = s·ln 2, μ = ln rms − σ²): E[x·1{x ≤ t}]/E[x] = Φ((ln t − μ − σ²)/σ) = Φ(log2(t/rms)/s) (the partial
@@ -239,27 +235,18 @@ interface FlushedMass {
  * Other laws, and where scale factors act, are charged the share of flushed elements (at least the mass share for
  * any law: the flushed elements are the smallest).
  */
-function flushedMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
-  if (risk.flushedFraction === 0) return 0;
-  // block scale factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
-  return Math.min(risk.flushedFraction, massBelow(profile, limits.flushBound * 2 ** -scaleLog2) ?? 1);
-}
-
-/**
- * Share of the first moment carried by the elements that round to a subnormal (between the flush bound and the smallest
- * normal): their precision is what a subnormal costs, and a row's average weighs them by their mass, as it weighs the
- * flushed ones ({@link flushedMass}; the same closed form and fallback).
- */
-function subnormalMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
-  if (risk.subnormalFraction === 0) return 0;
+function rowMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): [flushed: number, subnormal: number] {
   const factor = 2 ** -scaleLog2;
-  const below = massBelow(profile, limits.minNormal * factor);
   const flushed = massBelow(profile, limits.flushBound * factor);
-  if (below === null || flushed === null) return risk.subnormalFraction;
-  return Math.min(risk.subnormalFraction, Math.max(0, below - flushed));
+  const below = massBelow(profile, limits.minNormal * factor);
+  // block scale factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
+  const flushedShare = risk.flushedFraction === 0 ? 0 : Math.min(risk.flushedFraction, flushed ?? 1);
+  const subnormalShare =
+    risk.subnormalFraction === 0 ? 0 : below === null || flushed === null ? risk.subnormalFraction : Math.min(risk.subnormalFraction, Math.max(0, below - flushed));
+  return [flushedShare, subnormalShare];
 }
 
-// Φ(log2(t/r̄)/√(s² + S²)), the share of the first moment at or below t (flushedMass); null for a law without element
+// Φ(log2(t/r̄)/√(s² + S²)), the share of the first moment at or below t (rowMass); null for a law without element
 // spread (the element share is then charged)
 function massBelow(profile: MagnitudeProfile, t: number): number | null {
   const s = profile.elementLog2Spread ?? 0;
@@ -435,85 +422,50 @@ function tensorFindings(
   }
   // worst.flushAt follows the flushed energy; a share of elements is told at the moment that share is worst, which
   // can be the other end of the horizon (a spread widening at the end flushes more elements but less energy)
-  // a probability row: the mass its flushed elements carry, against the same limits (its amplitude, as a share of
-  // elements is; flushedMass)
-  if (mass !== null) {
-    const value = Math.max(mass.start, mass.end);
-    const lost = grade(value, t.flushedAtRisk, t.flushedFails);
-    if (lost !== null) {
-      const at = moreAt(mass.start, mass.end, worst.flushAt);
-      const threshold = lost === "fails" ? t.flushedFails : t.flushedAtRisk;
-      findings[found++] = {
-        format,
-        subject,
-        source: "tensor",
-        kind: "probability-mass-flushed",
-        severity: lost,
-        value,
-        threshold,
-        at,
-        sentence: [
-          "The elements of ", subject, " that round to zero in ", format, " ", when(at), " carry ", percent(value),
-          " of each row's probability mass (limit ", percent(threshold), ").",
-        ].join(""),
-      };
-    }
-  }
-  const flushed = mass !== null ? null : grade(worst.flushedFraction, t.flushedAtRisk, t.flushedFails);
+  // a probability row is judged by the mass its flushed and subnormal elements carry (rowMass), against
+  // the same limits as a share of elements (its amplitude, as that share is); other tensors by their share of elements
+  const row = mass !== null;
+  const flushStart = row ? mass.start : start.flushedFraction;
+  const flushEnd = row ? mass.end : end.flushedFraction;
+  const flushValue = Math.max(flushStart, flushEnd);
+  const flushed = grade(flushValue, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
-    const at = moreAt(start.flushedFraction, end.flushedFraction, worst.flushAt);
+    const at = moreAt(flushStart, flushEnd, worst.flushAt);
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;
     findings[found++] = {
       format,
       subject,
       source: "tensor",
-      kind: "flushed-values",
+      kind: row ? "probability-mass-flushed" : "flushed-values",
       severity: flushed,
-      value: worst.flushedFraction,
+      value: flushValue,
       threshold,
       at,
-      sentence: [
-        sentenceStart(percent(worst.flushedFraction)), " of the nonzero elements of ", subject, " round to zero in ", format, " ",
-        when(at), " (limit ", percent(threshold), ").",
-      ].join(""),
+      sentence: (row
+        ? ["The elements of ", subject, " that round to zero in ", format, " ", when(at), " carry ", percent(flushValue), " of each row's probability mass"]
+        : [sentenceStart(percent(flushValue)), " of the nonzero elements of ", subject, " round to zero in ", format, " ", when(at)]
+      ).concat(" (limit ", percent(threshold), ").").join(""),
     };
   }
-  // a probability row: the mass its subnormal elements carry, against the same limit (subnormalMass)
-  if (mass !== null) {
-    const value = Math.max(mass.subnormalStart, mass.subnormalEnd);
-    if (value > t.subnormalAtRisk) {
-      const at = moreAt(mass.subnormalStart, mass.subnormalEnd, worst.flushAt);
-      findings[found++] = {
-        format,
-        subject,
-        source: "tensor",
-        kind: "subnormal-values",
-        severity: "at-risk",
-        value,
-        threshold: t.subnormalAtRisk,
-        at,
-        sentence: [
-          "The elements of ", subject, " that are subnormal in ", format, " ", when(at), " carry ", percent(value),
-          " of each row's probability mass, with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
-        ].join(""),
-      };
-    }
-  } else if (worst.subnormalFraction > t.subnormalAtRisk) {
-    const at = moreAt(start.subnormalFraction, end.subnormalFraction, worst.flushAt);
+  const subnormalStart = row ? mass.subnormalStart : start.subnormalFraction;
+  const subnormalEnd = row ? mass.subnormalEnd : end.subnormalFraction;
+  const subnormalValue = Math.max(subnormalStart, subnormalEnd);
+  if (subnormalValue > t.subnormalAtRisk) {
+    const at = moreAt(subnormalStart, subnormalEnd, worst.flushAt);
     findings[found++] = {
       format,
       subject,
       source: "tensor",
       kind: "subnormal-values",
       severity: "at-risk",
-      value: worst.subnormalFraction,
+      value: subnormalValue,
       threshold: t.subnormalAtRisk,
       at,
       // when, as every other finding of a tensor says
-      sentence: [
-        sentenceStart(percent(worst.subnormalFraction)), " of the nonzero elements of ", subject, " are subnormal in ", format, " ",
-        when(at), ", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").",
-      ].join(""),
+      sentence: (row
+        ? ["The elements of ", subject, " that are subnormal in ", format, " ", when(at), " carry ", percent(subnormalValue), " of each row's probability mass"]
+        : [sentenceStart(percent(subnormalValue)), " of the nonzero elements of ", subject, " are subnormal in ", format, " ", when(at)]
+      ).concat(", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").").join(""),
     };
   }
   return findings.slice(0, found);
