@@ -285,15 +285,10 @@ function checkPlan(plan: Record<string, unknown>, path: Path, found: Found): voi
   if (typeof scale === "number" && Number.isFinite(scale) && scale > 0) {
     const exponent = Math.log2(scale);
     // a power of two changes only exponents, so scaling and unscaling are exact (common practice)
-    if (!Number.isInteger(exponent) || 2 ** exponent !== scale) {
-      found.errors.push({
-        path: [...path, "loss-scale"],
-        atKey: false,
-        message: `loss scale must be a power of two (such as 1024 or 65536), got ${scale}`,
-      });
-    } else if (lossScaleRangeProblem(exponent) !== undefined) {
-      found.errors.push({ path: [...path, "loss-scale"], atKey: false, message: `loss scale ${lossScaleRangeProblem(exponent)}` });
-    }
+    const problem = !Number.isInteger(exponent) || 2 ** exponent !== scale
+      ? `must be a power of two (such as 1024 or 65536), got ${scale}`
+      : lossScaleRangeProblem(exponent);
+    if (problem !== undefined) found.errors.push({ path: [...path, "loss-scale"], atKey: false, message: `loss scale ${problem}` });
   }
   const accumulate = plan["accumulate"];
   if (typeof accumulate === "string" && EIGHT_BIT.has(accumulate)) {
