@@ -8,7 +8,7 @@
  * the only width rule is that the layer's input is a features tensor.
  */
 import type { LayerSpec, NetworkSpec } from "../spec/types.js";
-import { describeShape, featureWidth, initDistribution, initVariance, sampleElements } from "./shape.js";
+import { describeShape, featureWidth, initDistribution, initVariance, positionCount, sampleElements } from "./shape.js";
 import type { ConcreteLayerSpec, Graph, GraphFamily, GraphIssue, GraphLayer, GraphResult, GraphWeight, SampleShape, WeightDistribution } from "./types.js";
 
 /** Tensors larger than this (elements in one step) are questioned as a likely typo. */
@@ -260,6 +260,15 @@ function place(
     case "layer-norm":
     case "rms-norm":
     case "batch-norm": {
+      // a channel's statistics cover batch × positions values; over one value x − mean(x) is exactly 0 (Ioffe & Szegedy
+      // 2015, Algorithm 1), which no magnitude prediction describes
+      if (spec.family === "batch-norm" && walk.spec.training.batch * positionCount(input) === 1) {
+        const at = JSON.stringify(spec.path);
+        // a block used or repeated again meets the same layer of the spec: told once
+        if (!walk.issues.some((issue) => JSON.stringify(issue.path) === at)) {
+          failAt(walk, spec, name, `batch-norm over one value per channel (batch 1, one ${input.layout === "image" ? "pixel" : "position"}): x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm`);
+        }
+      }
       const n = width;
       weights.push(gain(n, spec.gain));
       if (spec.family !== "rms-norm") weights.push(zeroBias(n));

@@ -416,54 +416,6 @@ function checkTraining(root: Record<string, unknown>, found: Found): void {
   }
 }
 
-/**
- * A batch norm whose channels hold one value each in a step (batch 1 and one position, features input): its output
- * x − mean(x) is exactly 0 (Ioffe & Szegedy 2015, Algorithm 1), which no magnitude prediction describes. Followed
- * through the layers in order (blocks, repeats and residual branches included): a flatten or a pool can bring the
- * positions down to one. Image inputs are left to the network's build: their sizes take the whole shape rules.
- */
-function checkSingleValueBatchNorm(root: Record<string, unknown>, found: Found): void {
-  if (finite(record(root["training"])?.["batch"]) !== 1) return;
-  const input = record(root["input"]);
-  if (input === undefined || !("features" in input)) return;
-  const blocks = record(root["blocks"]) ?? {};
-  const reported = new Set<string>();
-  let positions = finite(input["positions"]) ?? 1;
-  const walk = (items: unknown, path: Path, depth: number): void => {
-    // a cycle of blocks is reported by checkBlocks; this walk only stops at it
-    if (!Array.isArray(items) || depth > 64) return;
-    items.forEach((item, index) => {
-      const type = layerType(item);
-      const layer = record(item);
-      const at = [...path, index];
-      if (type === "batch-norm" && positions === 1 && !reported.has(JSON.stringify(at))) {
-        reported.add(JSON.stringify(at));
-        found.errors.push({
-          path: at,
-          atKey: false,
-          message: "batch-norm over one value per channel (batch 1, one position): x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm",
-        });
-      } else if (type === "flatten") positions = 1;
-      else if ((type === "average-pool" || type === "max-pool") && layer) {
-        const size = finite(layer["size"]);
-        const stride = finite(layer["stride"]) ?? size;
-        if (size !== undefined && stride !== undefined && stride > 0) positions = Math.max(1, Math.floor((positions - size) / stride) + 1);
-      } else if (type === "use" && layer && typeof layer["block"] === "string") walk(blocks[layer["block"]], ["blocks", layer["block"]], depth + 1);
-      else if (type === "repeat" && layer) {
-        // the positions only fall, so a second pass meets every batch norm that a later iteration meets
-        const times = finite(layer["times"]) ?? 1;
-        for (let pass = 0; pass < Math.min(times, 2); pass++) walk(layer["layers"], [...at, "layers"], depth + 1);
-      } else if (type === "residual" && layer) {
-        // the branch sees the block's input; the block gives back a tensor of the same shape
-        const before = positions;
-        walk(layer["branch"], [...at, "branch"], depth + 1);
-        positions = before;
-      }
-    });
-  };
-  walk(root["layers"], ["layers"], 0);
-}
-
 function checkMeasuredNames(root: Record<string, unknown>, layerNames: Set<string>, found: Found): void {
   const names = record(record(root["measured"])?.["names"]);
   if (!names) return;
@@ -494,7 +446,6 @@ export function crossChecks(document: unknown): Found {
   checkSizes(root, lists, found);
   checkPlans(root, found);
   checkTraining(root, found);
-  checkSingleValueBatchNorm(root, found);
   checkMeasuredNames(root, names, found);
   return found;
 }

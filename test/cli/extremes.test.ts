@@ -8,6 +8,8 @@ import { describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 
 const INVALID = "test/fixtures/specs/invalid";
+// specs that parse but describe no network a step can run: refused when the network is built
+const UNBUILDABLE = "test/fixtures/specs/unbuildable";
 const EXTREMES = "test/fixtures/specs/extremes";
 const STACK = /\n\s+at /;
 
@@ -113,10 +115,19 @@ describe("the loss scale's bounds say what they mean", () => {
 
 describe("batch norm over one value per channel", () => {
   it("is refused at the batch norm, with the reason (x − mean(x) = 0: Ioffe & Szegedy 2015, Algorithm 1)", () => {
-    const run = runCli(["check", `${INVALID}/batch-norm-one-value-per-channel.yaml`]);
+    const run = runCli(["check", `${UNBUILDABLE}/batch-norm-one-value-per-channel.yaml`]);
     expect(run.status).toBe(2);
     expect(run.stderr).toBe(
-      `${INVALID}/batch-norm-one-value-per-channel.yaml:10:7: blocks.squeeze[1]: batch-norm over one value per channel (batch 1, one position): ` +
+      `${UNBUILDABLE}/batch-norm-one-value-per-channel.yaml:10:7: blocks.squeeze[1]: use-1.batch-norm-1: batch-norm over one value per channel (batch 1, one position): ` +
+        "x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm\n",
+    );
+  });
+
+  it("is found on an image pooled to one pixel, once for a block used twice (Ioffe & Szegedy 2015, Algorithm 1)", () => {
+    const run = runCli(["check", `${UNBUILDABLE}/batch-norm-one-pixel.yaml`]);
+    expect(run.status).toBe(2);
+    expect(run.stderr).toBe(
+      `${UNBUILDABLE}/batch-norm-one-pixel.yaml:16:7: blocks.settle[0]: use-2.batch-norm-0: batch-norm over one value per channel (batch 1, one pixel): ` +
         "x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm\n",
     );
   });
