@@ -122,7 +122,11 @@ export function weighPick(
   // the subjects (sites, then tensors) that had a finding at some exponent judged go first in every later judgement
   const first: number[] = [];
   let seen = new Uint8Array(0);
+  // the exponents judged whole (no early stop), so 1 is not judged twice when the candidates reached it
+  const whole = new Map<number, ScaledFindings>();
   const judge = (log2: number, stop: ((found: ScaledFindings) => boolean) | null): ScaledFindings => {
+    const known = whole.get(log2);
+    if (known !== undefined) return known;
     if (subjects === undefined) {
       const made = scaledSubjects(spec, prediction);
       const sites = made.sites.length;
@@ -140,14 +144,17 @@ export function weighPick(
     const order = [...first];
     for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order.push(i);
     const found = none();
+    let stopped = false;
     judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i) => {
       add(found, f);
       if (seen[i] === 0) {
         seen[i] = 1;
         first.push(i);
       }
-      return stop === null || !stop(found);
+      stopped = stop !== null && stop(found);
+      return !stopped;
     });
+    if (!stopped) whole.set(log2, found);
     return found;
   };
   const centreFindings = atCentre?.findings ?? judge(centre, null);
