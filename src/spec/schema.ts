@@ -79,10 +79,11 @@ function buildSchemas(z: typeof Zod) {
   const size = (description: string) => z.int().min(1).max(MAX_SIZE).describe(description);
   const count = (description: string) => z.int().min(0).max(MAX_SIZE).describe(description);
   const positive = (description: string) => z.number().positive().describe(description);
-  const nonNegative = (description: string) => z.number().min(0).describe(description);
   const fraction = (description: string) => z.number().min(0).lt(1).describe(description);
   // a value beyond any real network is refused as a likely typo (limits.ts MAGNITUDE_RANGE)
   const magnitude = (description: string) => z.number().min(MAGNITUDE_RANGE.min).max(MAGNITUDE_RANGE.max).describe(description);
+  // a value that may be 0 (an epsilon, a decay, a final value), else as large as `magnitude` allows
+  const upToMagnitude = (description: string) => z.number().min(0).max(MAGNITUDE_RANGE.max).describe(description);
   const dataScale = (description: string) => z.number().min(SCALE_RANGE.min).max(SCALE_RANGE.max).describe(description);
   const format = (description: string) => z.enum(FORMAT_NAMES).describe(description);
 
@@ -211,7 +212,7 @@ function buildSchemas(z: typeof Zod) {
         type: z.literal(type).describe(what),
         name: layerName,
         gain: magnitude("The value of the gain vector, initial or measured (default 1)").default(1),
-        epsilon: nonNegative(`Added to the variance before the square root (default ${epsilon})`).default(epsilon),
+        epsilon: upToMagnitude(`Added to the variance before the square root (default ${epsilon})`).default(epsilon),
       })
       .describe(what);
 
@@ -410,7 +411,7 @@ function buildSchemas(z: typeof Zod) {
       z
         .strictObject({
           peak: magnitude("The schedule's peak (reached after warm-up)"),
-          end: z.number().min(0).max(MAGNITUDE_RANGE.max).describe("The final value (default: the peak)").optional(),
+          end: upToMagnitude("The final value (default: the peak)").optional(),
         })
         .describe("A schedule's peak and end"),
     ])
@@ -426,16 +427,16 @@ function buildSchemas(z: typeof Zod) {
         .tuple([fraction("beta1"), fraction("beta2")])
         .describe("Adam's decay rates [beta1, beta2], each in [0, 1), for adam and adamw only (default [0.9, 0.999])")
         .optional(),
-      epsilon: nonNegative("Adam's epsilon, for adam and adamw only (default 1e-8)").optional(),
-      "weight-decay": nonNegative("Weight decay (default 0; 0.01 for adamw)").optional(),
-      "clip-norm": positive("Clip gradients to this global norm (off when absent)").optional(),
+      epsilon: upToMagnitude("Adam's epsilon, for adam and adamw only (default 1e-8)").optional(),
+      "weight-decay": upToMagnitude("Weight decay (default 0; 0.01 for adamw)").optional(),
+      "clip-norm": magnitude("Clip gradients to this global norm (off when absent)").optional(),
     })
     .describe("The optimizer (default: adam with learning rate 0.001)");
 
   const horizon = z
     .strictObject({
       steps: z.int().min(1).max(MAX_STEPS).describe("Training steps until the end"),
-      "final-loss": z.number().min(0).max(MAGNITUDE_RANGE.max).describe("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
+      "final-loss": upToMagnitude("Expected loss at the end, per sample (the mean over samples and positions, also with reduction: sum); gradients shrink as the loss falls (absent: not assumed to shrink)").optional(),
       "weight-growth": z
         .number()
         .min(WEIGHT_GROWTH_RANGE.min)

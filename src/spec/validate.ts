@@ -79,6 +79,8 @@ const positive = (value: unknown): number => (finite(value) > 0 ? (value as numb
 const nonNegative = (value: unknown): number => (finite(value) >= 0 ? (value as number) : refuse());
 /** schema.ts `magnitude`: a number within MAGNITUDE_RANGE. */
 const magnitude = (value: unknown): number => (finite(value) >= MAGNITUDE_RANGE.min && (value as number) <= MAGNITUDE_RANGE.max ? (value as number) : refuse());
+/** schema.ts `upToMagnitude`: 0 to MAGNITUDE_RANGE.max. */
+const upToMagnitude = (value: unknown): number => (nonNegative(value) <= MAGNITUDE_RANGE.max ? (value as number) : refuse());
 /** schema.ts `dataScale`: a number within SCALE_RANGE. */
 const dataScale = (value: unknown): number => (finite(value) >= SCALE_RANGE.min && (value as number) <= SCALE_RANGE.max ? (value as number) : refuse());
 const weightGrowth = (value: unknown): number => (finite(value) >= WEIGHT_GROWTH_RANGE.min && (value as number) <= WEIGHT_GROWTH_RANGE.max ? (value as number) : refuse());
@@ -264,7 +266,7 @@ function norm(epsilon: number): (typeof LAYERS)[string] {
     keys: keys("type", "name", "gain", "epsilon"),
     fields: (out, raw) => {
       withDefault(out, raw, "gain", magnitude, 1);
-      withDefault(out, raw, "epsilon", nonNegative, epsilon);
+      withDefault(out, raw, "epsilon", upToMagnitude, epsilon);
     },
   };
 }
@@ -351,7 +353,7 @@ function learningRate(value: unknown): unknown {
   if (typeof value === "number") return magnitude(value);
   const raw = mapping(value, SCHEDULE_KEYS);
   const out: Data = { peak: magnitude(raw["peak"]) };
-  optional(out, raw, "end", (end) => (nonNegative(end) <= MAGNITUDE_RANGE.max ? (end as number) : refuse()));
+  optional(out, raw, "end", upToMagnitude);
   return out;
 }
 
@@ -368,9 +370,9 @@ function optimizer(value: unknown): Data {
     const items = list(betas);
     return items.length === 2 ? [fraction(items[0]), fraction(items[1])] : refuse();
   });
-  optional(out, raw, "epsilon", nonNegative);
-  optional(out, raw, "weight-decay", nonNegative);
-  optional(out, raw, "clip-norm", positive);
+  optional(out, raw, "epsilon", upToMagnitude);
+  optional(out, raw, "weight-decay", upToMagnitude);
+  optional(out, raw, "clip-norm", magnitude);
   return out;
 }
 
@@ -379,7 +381,7 @@ const HORIZON_KEYS = keys("steps", "final-loss", "weight-growth");
 function horizon(value: unknown): Data {
   const raw = mapping(value, HORIZON_KEYS);
   const out: Data = { steps: integer(raw["steps"], 1, MAX_STEPS) };
-  optional(out, raw, "final-loss", (loss) => (nonNegative(loss) <= MAGNITUDE_RANGE.max ? (loss as number) : refuse()));
+  optional(out, raw, "final-loss", upToMagnitude);
   withDefault(out, raw, "weight-growth", weightGrowth, 1);
   return out;
 }
