@@ -13,6 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
+import { anyAboveEnclosure } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -167,6 +168,9 @@ class BoundedCurves implements ScaledTensorCurves {
   private overflowK = NaN;
   private overflowStart = 1;
   private overflowEnd = 1;
+  // the moment bounds' lower ends at overflowK (NaN where the law has none: src/scale/overflow-enclosure.ts)
+  private overflowStartLow = NaN;
+  private overflowEndLow = NaN;
   private flushK = NaN;
   private flushStart = 1;
   private flushEnd = 1;
@@ -182,11 +186,21 @@ class BoundedCurves implements ScaledTensorCurves {
     this.same = parts.same;
   }
 
+  // each profile's upper bound at k: the moment bounds where the law has them (both ends kept), else the segment bound
   private overflowUppers(k: number): void {
     if (k === this.overflowK) return;
     const t = this.limits.overflowLevel * 2 ** -k;
-    this.overflowStart = probabilityAnyAboveUpper(this.start, t);
-    this.overflowEnd = this.same ? this.overflowStart : probabilityAnyAboveUpper(this.end, t);
+    const a = anyAboveEnclosure(this.start, t);
+    this.overflowStart = a === null ? probabilityAnyAboveUpper(this.start, t) : a[1];
+    this.overflowStartLow = a === null ? NaN : a[0];
+    if (this.same) {
+      this.overflowEnd = this.overflowStart;
+      this.overflowEndLow = this.overflowStartLow;
+    } else {
+      const b = anyAboveEnclosure(this.end, t);
+      this.overflowEnd = b === null ? probabilityAnyAboveUpper(this.end, t) : b[1];
+      this.overflowEndLow = b === null ? NaN : b[0];
+    }
     this.overflowK = k;
   }
 
@@ -221,8 +235,11 @@ class BoundedCurves implements ScaledTensorCurves {
     return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
   }
 
+  // the moment bounds of both profiles where the law has them, else the extreme-draw bounds (of the parts)
   overflowRiskBounds(k: number): readonly [number, number] {
-    return this.parts.overflowRiskBounds(k);
+    this.overflowUppers(k);
+    if (this.overflowStartLow !== this.overflowStartLow || this.overflowEndLow !== this.overflowEndLow) return this.parts.overflowRiskBounds(k);
+    return [Math.max(this.overflowStartLow, this.overflowEndLow), Math.max(this.overflowStart, this.overflowEnd)];
   }
 
   flushedEnergyBounds(k: number): readonly [number, number] {
@@ -315,6 +332,8 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
 class HorizonPoint {
   readonly n: number;
   private readonly profiles: (MagnitudeProfile | undefined)[];
+  /** per tensor 1 when its law is Gaussian with 16 elements or more (it has moment bounds), read off its start */
+  readonly gaussian: Uint8Array;
 
   constructor(
     private readonly gradients: readonly TensorPrediction[],
@@ -322,6 +341,13 @@ class HorizonPoint {
   ) {
     this.n = gradients.length;
     this.profiles = new Array<MagnitudeProfile | undefined>(this.n).fill(undefined);
+    this.gaussian = new Uint8Array(this.n);
+    for (let i = 0; i < this.n; i++) {
+      const start = gradients[i]!.start;
+      const shape = start.shape;
+      const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
+      this.gaussian[i] = gaussianLaw && start.elements * (1 - start.zeroFraction) >= 16 ? 1 : 0;
+    }
   }
 
   profile(i: number): MagnitudeProfile {
@@ -339,9 +365,10 @@ class HorizonPoint {
  * request. Each tensor's p_i starts bounded by what a larger scale of the same point of the horizon knows (p_i grows
  * with the scale), or by 1; one tensor is integrated at once: the one the larger scale bounds highest or, with no
  * larger scale, the one largest where the model last integrated (often p_i = 1 here too, which decides an overflow
- * alone). Then, in batches growing by a tenth, the tensors with the largest upper bounds get their segment upper
- * bound at this scale, and those still largest after it are integrated; the bounds on the product allow for its
- * rounding. Once every p_i that can move the product is known, the value is the product in the tensors' order,
+ * alone). Then, in batches growing by a tenth, the tensors whose bounds leave the most of the product open get
+ * bounds at this scale (the moment bounds of src/scale/overflow-enclosure.ts for a Gaussian law, within about 1e-3 of
+ * p_i where the spread is wide; else the segment upper bound), and those still leaving the most open after it are
+ * integrated; the bounds on the product allow for its rounding. Once every p_i that can move the product is known, the value is the product in the tensors' order,
  * exactly as {@link OverflowNarrowing.value} gives it.
  */
 class OverflowNarrowing implements OverflowBounds {
@@ -351,13 +378,15 @@ class OverflowNarrowing implements OverflowBounds {
   // each tensor's bounds on p_i (equal once integrated)
   private readonly lows: Float64Array;
   readonly highs: Float64Array;
-  // per tensor: 0 a bound from a larger scale (or 1), 1 its segment upper bound here or its value at the larger scale
-  // (integrated next), 2 integrated
+  // per tensor: 0 a bound from a larger scale (or 1), 1 its bounds here, or its value at the larger scale for a law
+  // without moment bounds (integrated next), 2 integrated
   private readonly state: Uint8Array;
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
-  // the tensors whose p_i can still move the product (upper bound above 2^−54), largest upper bound on top
+  // the tensors whose p_i can still move the product (upper bound above 2^−54), the widest bounds on top: by
+  // log(1 − low) − log(1 − high), what each leaves open of the product
   private readonly heap: IndexHeap;
+  private readonly open: Float64Array;
   private batch = 1;
   private largest = -1;
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
@@ -378,7 +407,8 @@ class OverflowNarrowing implements OverflowBounds {
     this.lows = new Float64Array(n);
     this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
-    this.heap = new IndexHeap(this.highs);
+    this.open = new Float64Array(n);
+    this.heap = new IndexHeap(this.open);
     let size = 1;
     while (size < n) size *= 2;
     this.size = size;
@@ -404,6 +434,12 @@ class OverflowNarrowing implements OverflowBounds {
     let j = this.size + i;
     tree[j] = factor;
     for (j >>= 1; j >= 1; j >>= 1) tree[j] = tree[2 * j]! * tree[2 * j + 1]!;
+  }
+
+  // into the heap, keyed by what its bounds leave open
+  private push(i: number): void {
+    this.open[i] = Math.log1p(-this.lows[i]!) - Math.log1p(-this.highs[i]!);
+    this.heap.push(i);
   }
 
   /** whether p_i is known exactly */
@@ -454,16 +490,17 @@ class OverflowNarrowing implements OverflowBounds {
         if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
       } else {
         for (let i = 0; i < n; i++) {
-          // a tensor integrated there is integrated here when its turn comes, without a segment bound first: it was
-          // among the largest there, where the segment bound (up to twice the value) rarely places it lower
-          if (above.known(i)) this.state[i] = 1;
+          // a tensor integrated there whose law has no moment bounds is integrated here when its turn comes, without a
+          // segment bound first: it was among the largest there, where the segment bound (up to twice the value) rarely
+          // places it lower
+          if (above.known(i) && this.point.gaussian[i] === 0) this.state[i] = 1;
           highs[i] = above.known(i) ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
           if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
         }
       }
       this.buildProducts();
       if (first >= 0) this.integrate(first);
-      for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.heap.push(i);
+      for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
     } else {
       // a batch of work: an upper bound costs about a quarter of an integral
       let work = this.batch;
@@ -471,12 +508,19 @@ class OverflowNarrowing implements OverflowBounds {
         const i = this.heap.pop();
         if (this.state[i] === 0) {
           this.state[i] = 1;
-          const upper = probabilityAnyAboveUpper(this.point.profile(i), this.level);
+          const profile = this.point.profile(i);
+          // bounds from the moments of the largest element's level where the law allows, else the segment bound
+          const enclosure = anyAboveEnclosure(profile, this.level);
+          const upper = enclosure === null ? probabilityAnyAboveUpper(profile, this.level) : enclosure[1];
           if (upper < highs[i]!) {
             highs[i] = upper;
             this.setFactor(this.highFactors, i, 1 - upper);
           }
-          if (highs[i]! > 2 ** -54) this.heap.push(i);
+          if (enclosure !== null && enclosure[0] > this.lows[i]!) {
+            this.lows[i] = enclosure[0];
+            this.setFactor(this.lowFactors, i, 1 - enclosure[0]);
+          }
+          if (highs[i]! > 2 ** -54) this.push(i);
           work -= 0.25;
         } else {
           this.integrate(i);

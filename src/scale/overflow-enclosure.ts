@@ -1,0 +1,187 @@
+/**
+ * Two-sided bounds on the probability that any element of a Gaussian-law tensor reaches a threshold, over draws of
+ * its scale ({@link probabilityAnyAbove} of src/risk/profile.ts), from a few evaluations of the normal tail instead of
+ * an integral: for the loss-scale window and the dynamic-scale simulation, which compare these probabilities with a
+ * budget or a random draw and integrate only where the bounds do not decide.
+ *
+ * The integrand is g(v) = 1 − (1 − erfc(2^v/√2))^n at v = log2(t/r), the probability that the largest of n element
+ * magnitudes at scale 1 reaches 2^v: g(v) = P(V ≥ v) with V = log2 max|Z_i| (Z_i independent standard normal). The
+ * draws put log2 r = log2 rms + s·Z with Z independent of V, so the draw integral is
+ *   I(x) = E_Z[g(x − s·Z)] = P(V + s·Z ≥ x) = E_V[h(V)],  h(v) = Q((x − v)/s),  x = log2(t/rms)
+ * (Q the normal upper tail). Taylor's theorem about μ = E[V] with the Lagrange remainder gives
+ *   I = Q(u) + u·φ(u)·σ²/(2s²) + R,  u = (x − μ)/s,  |R| ≤ (M_d·E[|V−μ|³; |V−μ| ≤ d] + φ(0)·E[|V−μ|³; |V−μ| > d])/(6s³)
+ * where h'''(v) = (u_v² − 1)·φ(u_v)/s³ (u_v = (x − v)/s), |(u² − 1)φ(u)| ≤ φ(0) everywhere, and M_d is its largest
+ * value over |v − μ| ≤ d. The moments of V are computed once per process on a grid of counts n_k = e^{k/256}; I grows
+ * with n (more elements, more chances), so the grid count below n gives the lower bound and the one above the upper.
+ * The bounds are widened for what separates the computed integral from I: the fast erfc's relative error 1.2e-7, the
+ * sum's 1e-6 (laws.ts), the moments' quadrature; 2e-5 of the upper bound covers them all (checked against the
+ * integrals of src/risk/profile.ts in test/scale/overflow-enclosure.test.ts).
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { erfc, normalPdf, normalSf } from "../risk/_math.js";
+
+// below this many elements V's lower tail is only exponential in v (P(V ≤ v) ≈ (0.8·2^v)^n): the moments' range
+// would have to reach far down; such tensors keep the integrals' own bounds
+const LEAST_COUNT = 16;
+// grid counts per unit of ln n: between neighbours V moves by about (1/256)/(2 ln n · ln 2) binade
+const PER_LN = 256;
+// the quadrature of the moments: Simpson's rule on v in steps of 1/STEPS binade over [c − BELOW, c + ABOVE] around
+// c = log2 √(2 ln n), the level of the largest element (Gumbel's location, from memory; only the range's centre)
+const STEPS = 256;
+const BELOW = 8;
+const ABOVE = 3;
+// φ(0)
+const PHI0 = 0.3989422804014327;
+// what separates the computed integral from I, relative to the upper bound (see above)
+const WIDEN = 2e-5;
+
+interface LevelMoments {
+  mean: number;
+  variance: number;
+  /** the shells' edges, as offsets from the mean in binades (−∞ first, +∞ last) */
+  edges: Float64Array;
+  /** per shell j (between edges j and j + 1): E[|V − μ|³; V in the shell] */
+  thirds: Float64Array;
+}
+
+// the shells' inner edges in standard deviations of V from its mean: the remainder takes the largest |h'''| over each
+// shell times the shell's share of E|V − μ|³. V's upper tail is about exponential in its standard units near the
+// mean (Gumbel's, from memory) and then falls as n·erfc(2^v/√2); its lower tail is double-exponential
+const SHELL_EDGES = [-8, -4, -2, -1, 0, 1, 2, 3, 4, 5, 6, 8, 10, 13, 17, 22, 28, 36, 46];
+
+const MOMENTS = new Map<number, LevelMoments>();
+
+// the density of V at v: n·(1 − P)^{n−1}·(−dP/dv), P = erfc(a/√2), a = 2^v, −dP/dv = √(2/π)·a·ln 2·e^{−a²/2}
+function levelDensity(v: number, n: number): number {
+  const a = 2 ** v;
+  const p = erfc(a / Math.SQRT2);
+  if (!(p < 1)) return 0;
+  return n * Math.exp((n - 1) * Math.log1p(-p)) * 0.7978845608028654 * a * Math.LN2 * Math.exp(-0.5 * a * a);
+}
+
+/** The moments of V for the grid count e^{k/PER_LN}, computed on first use (exported for tests). */
+export function levelMoments(k: number): LevelMoments {
+  let m = MOMENTS.get(k);
+  if (m !== undefined) return m;
+  const n = Math.exp(k / PER_LN);
+  const centre = Math.log2(Math.sqrt(2 * Math.log(n)));
+  const from = centre - BELOW;
+  const count = (BELOW + ABOVE) * STEPS;
+  const step = 1 / STEPS;
+  const values = new Float64Array(count + 1);
+  const weights = new Float64Array(count + 1);
+  let mass = 0;
+  let first = 0;
+  for (let j = 0; j <= count; j++) {
+    values[j] = levelDensity(from + j * step, n);
+    weights[j] = ((j === 0 || j === count ? 1 : j % 2 === 1 ? 4 : 2) * step) / 3;
+    mass += (weights[j] as number) * (values[j] as number);
+    first += (weights[j] as number) * (values[j] as number) * (from + j * step);
+  }
+  const mean = first / mass;
+  let variance = 0;
+  for (let j = 0; j <= count; j++) {
+    const e = from + j * step - mean;
+    variance += (weights[j] as number) * (values[j] as number) * e * e;
+  }
+  variance /= mass;
+  const sigma = Math.sqrt(variance);
+  const edges = new Float64Array(SHELL_EDGES.length + 2);
+  edges[0] = -Infinity;
+  for (let j = 0; j < SHELL_EDGES.length; j++) edges[j + 1] = (SHELL_EDGES[j] as number) * sigma;
+  edges[edges.length - 1] = Infinity;
+  const thirds = new Float64Array(edges.length - 1);
+  let shell = 0;
+  for (let j = 0; j <= count; j++) {
+    const e = from + j * step - mean;
+    while (e > (edges[shell + 1] as number)) shell++;
+    thirds[shell] = (thirds[shell] as number) + ((weights[j] as number) * (values[j] as number) * Math.abs(e) ** 3) / mass;
+  }
+  // the mass beyond the quadrature's range: below, P(V ≤ from) = (1 − erfc(2^from/√2))^n; above, at most
+  // n·erfc(2^top/√2). Each is charged a distance of the whole range plus 64 binades, cubed (V below `from` is far
+  // less likely still lower: the tail falls as (0.8·2^v)^n, n ≥ 16), in the outermost shells
+  const below = Math.exp(n * Math.log1p(-erfc(2 ** from / Math.SQRT2)));
+  const above = Math.min(1, n * erfc(2 ** (from + count * step) / Math.SQRT2));
+  const reach = BELOW + ABOVE + 64;
+  thirds[0] = (thirds[0] as number) + below * reach * reach * reach;
+  thirds[thirds.length - 1] = (thirds[thirds.length - 1] as number) + above * reach * reach * reach;
+  m = { mean, variance, edges, thirds };
+  MOMENTS.set(k, m);
+  return m;
+}
+
+// |(u² − 1)·φ(u)|, 0 at ±∞
+function third(u: number): number {
+  return Number.isFinite(u) ? Math.abs((u * u - 1) * normalPdf(u)) : 0;
+}
+const ROOT3 = Math.sqrt(3);
+const THIRD_PEAK = third(ROOT3);
+
+// The Taylor value of I at x for grid count k, minus (side −1) or plus (side +1) its remainder bound: over each shell
+// the largest |(u² − 1)φ(u)| is at an end, or at its peaks 0 and ±√3 when they lie inside (it falls away from them).
+// A shell whose share could move the bound by less than a thousandth of the value takes φ(0), the largest anywhere,
+// without evaluating its ends.
+function taylor(x: number, s: number, k: number, side: number): number {
+  const m = levelMoments(k);
+  const u = (x - m.mean) / s;
+  const value = normalSf(u) + (u * normalPdf(u) * m.variance) / (2 * s * s);
+  const edges = m.edges;
+  const thirds = m.thirds;
+  const scale = 6 * s * s * s;
+  const negligible = (1e-3 * Math.abs(value) * scale) / PHI0;
+  let sum = 0;
+  // u falls as v rises: shell j spans u from b (at its upper edge) to a (at its lower edge); fa is third(a) once taken
+  let a = Infinity;
+  let fa = 0;
+  for (let j = 0; j < thirds.length; j++) {
+    const c = thirds[j] as number;
+    const b = (x - m.mean - (edges[j + 1] as number)) / s;
+    if (c <= negligible) {
+      sum += PHI0 * c;
+      a = b;
+      fa = NaN;
+      continue;
+    }
+    if (fa !== fa) fa = third(a);
+    const fb = third(b);
+    let peak = Math.max(fa, fb);
+    if (b <= 0 && 0 <= a) peak = PHI0;
+    else if ((b <= ROOT3 && ROOT3 <= a) || (b <= -ROOT3 && -ROOT3 <= a)) peak = Math.max(peak, THIRD_PEAK);
+    sum += peak * c;
+    a = b;
+    fa = fb;
+  }
+  return value + (side * sum) / scale;
+}
+
+/** Whether {@link anyAboveEnclosure} bounds this profile's any-above probability at t (a Gaussian law, enough elements). */
+export function enclosureApplies(profile: MagnitudeProfile, t: number): boolean {
+  if (!(profile.rms > 0) || !(profile.log2Spread > 0) || !(t > 0)) return false;
+  const shape = profile.shape;
+  if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return false;
+  // a bound decides the law past it (the probability is 0 there): the integrals' own bounds say so
+  if (profile.bound !== undefined && profile.bound > 0 && t > profile.bound) return false;
+  const n = profile.elements * (1 - profile.zeroFraction);
+  return n >= LEAST_COUNT && Number.isFinite(n);
+}
+
+/**
+ * Bounds [low, high] on {@link probabilityAnyAbove}(profile, t) (every element, both signs) from the moments of the
+ * largest element's level, or null where they do not apply (another law, fewer than 16 elements, no spread, t past a
+ * bound): a few evaluations of the normal tail, within about 1e-3 of the value where the spread is a few times the
+ * level's own width (see the module comment).
+ */
+export function anyAboveEnclosure(profile: MagnitudeProfile, t: number): [number, number] | null {
+  if (!enclosureApplies(profile, t)) return null;
+  const n = profile.elements * (1 - profile.zeroFraction);
+  const s = profile.log2Spread;
+  const x = Math.log2(t) - Math.log2(profile.rms);
+  if (!Number.isFinite(x)) return null;
+  const at = Math.log(n) * PER_LN;
+  const below = Math.floor(at);
+  const above = Math.ceil(at);
+  const low = taylor(x, s, below, -1);
+  const high = taylor(x, s, above, 1);
+  const widen = WIDEN * Math.max(0, high);
+  return [Math.max(0, low - widen), Math.min(1, high + widen)];
+}

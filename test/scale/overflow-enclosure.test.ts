@@ -1,0 +1,148 @@
+// The moment bounds on the probability that any element of a Gaussian-law tensor reaches a threshold
+// (src/scale/overflow-enclosure.ts) let the loss-scale window and the dynamic-scale simulation skip integrals: they
+// must contain the integral the rest of the program computes (src/risk/profile.ts probabilityAnyAbove, which is
+// laws.ts's directLawOverDraws for this measure), for every Gaussian law, count, spread and threshold, and the
+// integral itself, computed here independently; and they must be tight where the spread is wide.
+import * as fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile } from "../../src/magnitude/types.js";
+import { erfc as preciseErfc } from "../../src/numeric/normal.js";
+import { directLawOverDraws } from "../../src/risk/laws.js";
+import { probabilityAnyAbove } from "../../src/risk/index.js";
+import { anyAboveEnclosure, enclosureApplies, levelMoments } from "../../src/scale/overflow-enclosure.js";
+
+const SHAPES = ["gaussian", "half-gaussian", "bounded"] as const;
+
+function profileOf(shape: (typeof SHAPES)[number], elements: number, zeroFraction: number, log2Spread: number, rms: number, bound?: number): MagnitudeProfile {
+  return { elements, zeroFraction, shape, rms, log2Spread, ...(bound === undefined ? {} : { bound }) };
+}
+
+// The draw integral by its definition, E_z[1 − (1 − erfc(2^{x − s·z}/√2))^n] over z ~ N(0, 1), with the precise erfc
+// (Cody 1969, src/numeric/normal.ts) and composite Simpson on ±12 standard deviations in steps of 1/512 (Abramowitz &
+// Stegun 25.4.5); 1 − (1 − p)^n as −expm1(n·log1p(−p)).
+function reference(x: number, s: number, n: number): number {
+  const steps = 24 * 512;
+  const h = 24 / steps;
+  let sum = 0;
+  for (let j = 0; j <= steps; j++) {
+    const z = -12 + j * h;
+    const p = preciseErfc(2 ** (x - s * z) / Math.SQRT2);
+    const g = p >= 1 ? 1 : -Math.expm1(n * Math.log1p(-p));
+    const w = j === 0 || j === steps ? 1 : j % 2 === 1 ? 4 : 2;
+    sum += (w * h * g * Math.exp(-0.5 * z * z)) / (3 * Math.sqrt(2 * Math.PI));
+  }
+  return sum;
+}
+
+describe("anyAboveEnclosure", () => {
+  it("contains the computed probability for every Gaussian law, count, spread and threshold (property)", () => {
+    fc.assert(
+      fc.property(
+        fc.constantFrom(...SHAPES),
+        fc.double({ min: 16, max: 1e9, noNaN: true }),
+        fc.double({ min: 0, max: 0.9, noNaN: true }),
+        fc.double({ min: 0.01, max: 5, noNaN: true }),
+        fc.double({ min: -30, max: 30, noNaN: true }),
+        fc.double({ min: -12, max: 80, noNaN: true }),
+        (shape, elements, zeroFraction, spread, log2Rms, above) => {
+          const rms = 2 ** log2Rms;
+          const t = rms * 2 ** above;
+          const p = profileOf(shape, elements, zeroFraction, spread, rms, shape === "bounded" ? t * 4 : undefined);
+          const e = anyAboveEnclosure(p, t);
+          if (elements * (1 - zeroFraction) < 16) return e === null;
+          if (e === null) return false;
+          const value = probabilityAnyAbove(p, t);
+          const direct = directLawOverDraws(p, "any-above", t);
+          return e[0] <= value && value <= e[1] && e[0] <= direct && direct <= e[1];
+        },
+      ),
+      { numRuns: 3000 },
+    );
+  });
+
+  it("contains the computed probability over a sweep of thresholds on the window's grid (whole binades)", () => {
+    let checked = 0;
+    for (const shape of SHAPES) {
+      for (const log2Spread of [0.05, 0.3, 1, 2.25, 3.2, 5]) {
+        for (const [elements, zeroFraction] of [[16, 0], [241.3, 0], [4096, 0.5], [45_974.87, 0], [65_536, 0.3], [1e8, 0]] as const) {
+          for (let x = -20; x <= 90; x++) {
+            const t = 2 ** (x - 13);
+            const p = profileOf(shape, elements, zeroFraction, log2Spread, 2 ** -13, shape === "bounded" ? 2 ** 100 : undefined);
+            const e = anyAboveEnclosure(p, t)!;
+            const value = probabilityAnyAbove(p, t);
+            if (!(e[0] <= value && value <= e[1])) throw new Error(`${JSON.stringify(p)} t=2^${x - 13}: ${value} outside [${e[0]}, ${e[1]}]`);
+            checked++;
+          }
+        }
+      }
+    }
+    expect(checked).toBe(3 * 6 * 6 * 111);
+  });
+
+  it("contains the draw integral computed from its definition", () => {
+    for (const [n, s] of [[16, 0.5], [241.3, 2.2], [8192, 1], [45_974.87, 3.16], [1e7, 0.2]] as const) {
+      for (const x of [-6, -1, 0, 1, 2, 3, 5, 8, 12, 20, 30]) {
+        const want = reference(x, s, n);
+        const e = anyAboveEnclosure(profileOf("gaussian", n, 0, s, 1), 2 ** x)!;
+        if (!(e[0] <= want && want <= e[1])) throw new Error(`n=${n} s=${s} x=${x}: ${want} outside [${e[0]}, ${e[1]}]`);
+      }
+    }
+  });
+
+  it("is tight where the spread is wide against the level's width: relative to the probability from 1e-12 to 1/2, absolute above", () => {
+    let checked = 0;
+    // the relative widths measured when written (0.23, 0.08, 0.008, 0.007 at most), with room
+    for (const [n, s, relative] of [[241.3, 2.2, 0.3], [4096, 2, 0.1], [45_974.87, 3.16, 0.01], [1e6, 2.5, 0.01]] as const) {
+      for (let x = -30; x <= 60; x += 0.25) {
+        const p = profileOf("gaussian", n, 0, s, 1);
+        const value = probabilityAnyAbove(p, 2 ** x);
+        const e = anyAboveEnclosure(p, 2 ** x)!;
+        if (value >= 1e-12 && value <= 0.5) {
+          expect((e[1] - e[0]) / value).toBeLessThan(relative);
+          checked++;
+        } else if (value > 0.5) {
+          expect(e[1] - e[0]).toBeLessThan(5e-4);
+          checked++;
+        }
+      }
+    }
+    expect(checked).toBeGreaterThan(500);
+  });
+
+  it("does not apply to other laws, to fewer than 16 elements, to no spread, or past a bound", () => {
+    expect(enclosureApplies(profileOf("gaussian", 15, 0, 1, 1), 2)).toBe(false);
+    expect(enclosureApplies(profileOf("gaussian", 32, 0.6, 1, 1), 2)).toBe(false);
+    expect(enclosureApplies(profileOf("gaussian", 32, 0, 0, 1), 2)).toBe(false);
+    expect(enclosureApplies(profileOf("bounded", 32, 0, 1, 1, 1), 2)).toBe(false);
+    expect(enclosureApplies(profileOf("bounded", 32, 0, 1, 1, 4), 2)).toBe(true);
+    expect(enclosureApplies({ elements: 32, zeroFraction: 0, shape: "uniform", rms: 1, log2Spread: 1 }, 2)).toBe(false);
+    expect(enclosureApplies({ elements: 32, zeroFraction: 0, shape: "log-normal", rms: 1, log2Spread: 1, elementLog2Spread: 1 }, 2)).toBe(false);
+    expect(anyAboveEnclosure(profileOf("gaussian", 15, 0, 1, 1), 2)).toBeNull();
+  });
+});
+
+describe("levelMoments", () => {
+  it("give the mean and variance of V = log2 max|Z_i| by the layer-cake formulas on its survival function", () => {
+    // E[V] = v0 + ∫_{v0}^{∞} P(V > v) dv − ∫_{−∞}^{v0} P(V ≤ v) dv and E[(V − m)²] = 2∫ (v − m)·P(V > v) dv over v > m
+    // plus 2∫ (m − v)·P(V ≤ v) dv over v < m (common practice), with P(V > v) = 1 − (1 − erfc(2^v/√2))^n
+    // (Cody's erfc, src/numeric/normal.ts), composite trapezoid in steps of 1/4096 binade
+    for (const k of [Math.round(Math.log(16) * 256), Math.round(Math.log(8192) * 256), Math.round(Math.log(1e8) * 256)]) {
+      const n = Math.exp(k / 256);
+      const survival = (v: number) => {
+        const p = preciseErfc(2 ** v / Math.SQRT2);
+        return p >= 1 ? 1 : -Math.expm1(n * Math.log1p(-p));
+      };
+      const v0 = Math.log2(Math.sqrt(2 * Math.log(n)));
+      const h = 1 / 4096;
+      let mean = v0;
+      for (let v = v0; v < v0 + 4; v += h) mean += h * 0.5 * (survival(v) + survival(v + h));
+      for (let v = v0; v > v0 - 10; v -= h) mean -= h * 0.5 * (2 - survival(v) - survival(v - h));
+      let variance = 0;
+      for (let v = mean; v < mean + 4; v += h) variance += h * ((v - mean) * survival(v) + (v + h - mean) * survival(v + h));
+      for (let v = mean; v > mean - 10; v -= h) variance += h * ((mean - v) * (1 - survival(v)) + (mean - v + h) * (1 - survival(v - h)));
+      const m = levelMoments(k);
+      expect(Math.abs(m.mean - mean)).toBeLessThan(1e-6);
+      expect(Math.abs(m.variance - variance) / variance).toBeLessThan(1e-4);
+    }
+  });
+});
