@@ -35,25 +35,37 @@ function gaussianAbove(r: number, t: number): number {
   return erfc(t / (r * SQRT2));
 }
 // E[Z²; |Z| ≤ a] = erf(a/√2) − 2aφ(a) (integration by parts of z·zφ(z)); below a = 1 the difference cancels,
-// so use the termwise integral of the Taylor series of z²e^{−z²/2}: 2φ(0)·Σ (−1/2)^k/k!·a^{2k+3}/(2k+3).
+// so use the termwise integral of the Taylor series of z²e^{−z²/2}: 2φ(0)·Σ (−1/2)^k/k!·a^{2k+3}/(2k+3), by Horner
+// in a² through the term where the next one falls below 1e-18 of the first (at a² below 1/64, 1/4 and 1: 7, 11 and 16
+// terms). The draw sums evaluate this at every node, so its coefficients are taken once.
+const ENERGY_SERIES = (() => {
+  const coefficients = new Float64Array(16);
+  let factor = 2 * normalPdf(0);
+  for (let k = 0; k < coefficients.length; k++) {
+    coefficients[k] = factor / (2 * k + 3);
+    factor *= -0.5 / (k + 1);
+  }
+  return coefficients;
+})();
+// past a = 9 the complement erfc(a/√2) + 2aφ(a) is below 1.9e-17 (erfc(x) ≤ 2e^{−x²}/(√π·(x + √(x² + 4/π))),
+// Abramowitz & Stegun 7.1.13: 2.3e-19 at x = 9/√2), under 2^−54, half the spacing of doubles below 1: 1 minus it
+// rounds to 1 exactly
+const ENERGY_ONE = 9;
+function energySeries(a2: number, terms: number): number {
+  const c = ENERGY_SERIES;
+  let sum = c[terms - 1] as number;
+  for (let k = terms - 2; k >= 0; k--) sum = sum * a2 + (c[k] as number);
+  return sum;
+}
 function gaussianEnergyBelow(r: number, t: number): number {
   if (!(t > 0)) return 0;
   if (!(r > 0)) return 1;
   const a = t / r;
   if (a < 1) {
     const a2 = a * a;
-    let power = a * a2;
-    let coefficient = 1;
-    let sum = 0;
-    for (let k = 0; k < 30; k++) {
-      const term = (coefficient * power) / (2 * k + 3);
-      sum += term;
-      if (Math.abs(term) < 1e-17 * Math.abs(sum)) break;
-      coefficient *= -0.5 / (k + 1);
-      power *= a2;
-    }
-    return 2 * normalPdf(0) * sum;
+    return a * a2 * energySeries(a2, a2 < 1 / 64 ? 7 : a2 < 0.25 ? 11 : 16);
   }
+  if (a >= ENERGY_ONE) return 1;
   // the complement erfc(a/√2) + 2aφ(a) has no cancellation for large a
   return 1 - (erfc(a / SQRT2) + 2 * a * normalPdf(a));
 }
@@ -232,30 +244,54 @@ const COARSE_END_SHARE = 1e-13;
 // The scale factors 2^(spread·z_i) of the rule's nodes per spread: the calls for one profile (several thresholds
 // of a tensor, a search over loss scales) share its spread, so each power is taken once, and only for the nodes a
 // sum visits (0 marks a power not yet taken). A direct-mapped table on the spread's bits (no Map of doubles, no
-// bound to enforce: a collision replaces the older row).
+// bound to enforce: a collision replaces the older row). A power is the product of two the row keeps after the nodes:
+// 2^(spread·m) at the whole z = m (19 of them) and 2^(spread·j/8) for the eighths j = 0 … 7, made by products from
+// three powers when the row is made: a power costs more than the law at a node, and a sum over the whole rule took
+// 145 of them. The factors stay within 4e-15 relative of the power taken at once (the draws' scale moves by that:
+// nothing a reported digit reads).
 const FACTOR_SLOTS = 4096;
 const FACTOR_KEYS = new Float64Array(FACTOR_SLOTS).fill(NaN);
 const FACTOR_ROWS: Float64Array[] = [];
 const BITS = new Float64Array(1);
 const BITS_WORDS = new Uint32Array(BITS.buffer);
+// node i sits at z = m + j/8 with m = floor((i − FACTOR_CENTRE)/8); the row's whole powers start at FACTOR_WHOLE
+// (m = −DRAW_LIMIT there), its eighths at FACTOR_EIGHTHS
+const FACTOR_CENTRE = Math.round(DRAW_LIMIT / DRAW_STEP);
+const FACTOR_WHOLE = DRAW_NODES.z.length;
+const FACTOR_EIGHTHS = FACTOR_WHOLE + 2 * DRAW_LIMIT + 1;
+const FACTOR_PER_WHOLE = Math.round(1 / DRAW_STEP);
+const FACTOR_ROW = FACTOR_EIGHTHS + FACTOR_PER_WHOLE;
 function nodeFactors(log2Spread: number): Float64Array {
   BITS[0] = log2Spread;
   const slot = (Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b) >>> 20) & (FACTOR_SLOTS - 1);
   let factors = FACTOR_ROWS[slot];
   if (FACTOR_KEYS[slot] !== log2Spread || factors === undefined) {
     if (factors === undefined) {
-      factors = new Float64Array(DRAW_NODES.z.length);
+      factors = new Float64Array(FACTOR_ROW);
       FACTOR_ROWS[slot] = factors;
-    } else factors.fill(0);
+    } else factors.fill(0, 0, FACTOR_WHOLE);
     FACTOR_KEYS[slot] = log2Spread;
+    // the whole and eighth powers by products of three powers: each within 2e-15 relative (at most 17 roundings)
+    const up = 2 ** log2Spread;
+    const down = 2 ** -log2Spread;
+    factors[FACTOR_WHOLE + DRAW_LIMIT] = 1;
+    for (let m = 1; m <= DRAW_LIMIT; m++) {
+      factors[FACTOR_WHOLE + DRAW_LIMIT + m] = (factors[FACTOR_WHOLE + DRAW_LIMIT + m - 1] as number) * up;
+      factors[FACTOR_WHOLE + DRAW_LIMIT - m] = (factors[FACTOR_WHOLE + DRAW_LIMIT - m + 1] as number) * down;
+    }
+    const eighth = 2 ** (log2Spread * DRAW_STEP);
+    factors[FACTOR_EIGHTHS] = 1;
+    for (let j = 1; j < FACTOR_ROW - FACTOR_EIGHTHS; j++) factors[FACTOR_EIGHTHS + j] = (factors[FACTOR_EIGHTHS + j - 1] as number) * eighth;
   }
   return factors;
 }
 // 2^(spread·z_i), taken once per spread and node
-function factorAt(factors: Float64Array, i: number, log2Spread: number): number {
+function factorAt(factors: Float64Array, i: number): number {
   let factor = factors[i] as number;
   if (factor === 0) {
-    factor = 2 ** (log2Spread * (DRAW_NODES.z[i] as number));
+    const k = i - FACTOR_CENTRE;
+    const m = Math.floor(k * DRAW_STEP);
+    factor = (factors[FACTOR_WHOLE + DRAW_LIMIT + m] as number) * (factors[FACTOR_EIGHTHS + k - FACTOR_PER_WHOLE * m] as number);
     factors[i] = factor;
   }
   return factor;
@@ -581,7 +617,7 @@ function beginDraw(rms: number, log2Spread: number): void {
 }
 function nodeValue(i: number): number {
   if (KNOWN[i] === drawStamp) return VALUES[i] as number;
-  const value = integrand(drawRms * factorAt(drawFactors, i, drawSpread));
+  const value = integrand(drawRms * factorAt(drawFactors, i));
   VALUES[i] = value;
   KNOWN[i] = drawStamp;
   return value;
@@ -608,6 +644,19 @@ function coarseSum(): number {
   if (agreed && ends <= COARSE_END_SHARE * Math.abs(half)) return Math.min(1, Math.max(0, half));
   return NaN;
 }
+
+// The nodes of neither coarse rule, in order, with the nearest coarse nodes (of either rule) below and above each.
+const FINE_NODES = new Int32Array(DRAW_NODES.z.length);
+const FINE_PREVIOUS = new Int32Array(DRAW_NODES.z.length);
+const FINE_NEXT = new Int32Array(DRAW_NODES.z.length);
+let fineCount = 0;
+for (let i = 1, last = DRAW_NODES.z.length - 1; i < last; i++) {
+  if (i % HALF_STRIDE === 0 || i % THREE_QUARTER_STRIDE === 0) continue;
+  FINE_NODES[fineCount] = i;
+  FINE_PREVIOUS[fineCount] = Math.max(i - (i % HALF_STRIDE), i - (i % THREE_QUARTER_STRIDE));
+  FINE_NEXT[fineCount++] = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
+}
+const FINE_COUNT = fineCount;
 
 // The rule's own sums, from the nodes' values (each node evaluated at most once per sum).
 function ruleSum(trim: boolean): number {
@@ -645,11 +694,10 @@ function ruleSum(trim: boolean): number {
   }
   // f is monotone, so between two evaluated nodes of equal value (a share already 0 or 1, a probability that
   // underflows) every node has that value: the sum is the Simpson sum, with the flat stretches not re-evaluated
-  for (let i = 1; i < last; i++) {
-    if (i % HALF_STRIDE === 0 || i % THREE_QUARTER_STRIDE === 0) continue;
-    const previous = Math.max(i - (i % HALF_STRIDE), i - (i % THREE_QUARTER_STRIDE));
-    const next = Math.min(i - (i % HALF_STRIDE) + HALF_STRIDE, i - (i % THREE_QUARTER_STRIDE) + THREE_QUARTER_STRIDE, last);
-    const before = values[previous] as number;
+  for (let k = 0; k < FINE_COUNT; k++) {
+    const i = FINE_NODES[k] as number;
+    const before = values[FINE_PREVIOUS[k] as number] as number;
+    const next = FINE_NEXT[k] as number;
     if (before === values[next]) values[i] = before;
     else if (i < lowCut || i > highCut) values[i] = 0.5 * (before + (values[next] as number));
     else nodeValue(i);
@@ -784,15 +832,15 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
   }
   // 2^(spread·z) at the nodes, as 2 ** (log2Spread * z) (z = ±9, ±4 exactly)
   const factors = nodeFactors(log2Spread);
-  const a = integrand(rms * factorAt(factors, 0, log2Spread));
-  const b = integrand(rms * factorAt(factors, factors.length - 1, log2Spread));
+  const a = integrand(rms * factorAt(factors, 0));
+  const b = integrand(rms * factorAt(factors, DRAW_NODES.z.length - 1));
   if (a === b) return bounds(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
   const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
   // the any-above sums integrate every draw: the draws beyond ±9 (mass 2Q(9) < 2.3e-19, A&S 26.2.29) may carry up to 1
   const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12) + (integrandKind === ANY_ABOVE ? 2.3e-19 : 0));
   if (!inner || outerLow === outerHigh) return bounds(outerLow, outerHigh);
-  const c = integrand(rms * factorAt(factors, INNER_LOW_NODE, log2Spread));
-  const d = integrand(rms * factorAt(factors, INNER_HIGH_NODE, log2Spread));
+  const c = integrand(rms * factorAt(factors, INNER_LOW_NODE));
+  const d = integrand(rms * factorAt(factors, INNER_HIGH_NODE));
   const inside = 1 - INNER_OUTSIDE;
   const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
   const high = Math.min(1, (Math.max(c, d) * inside + INNER_OUTSIDE) * (1 + 1e-9));
