@@ -510,6 +510,11 @@ export interface SoftmaxRowMoments {
    * gradients g_j of unit variance that the softmax Jacobian keeps, E[Σ_j (p_j·(g_j − Σ_l p_l g_l))²] (own algebra)
    */
   centred: number;
+  /**
+   * dE[S]/d(s²) = E[S + 3S² − 4·Σ_j p_j³]: half of E[Δ_z S], the Laplacian of S = Σ_j p_j² over the logits (the heat
+   * equation, d/dt E[f(z + √t·w)] = ½·E[Δf]; own algebra), how fast the rows concentrate as the logits spread
+   */
+  slope: number;
   /** E[(Σ_j p_j z_j)²]/s²: the second moment of the softmax-weighted logit, in units of the logits' variance */
   tilt: number;
   /** E[Σ_j p_j z_j]/s², which Stein's lemma fixes at 1 − E[S] (Stein 1981, Lemma 1): a check of the quadrature */
@@ -539,6 +544,8 @@ function peakedRows(variance: number, minKeys: number, maxKeys: number): Softmax
     return {
       sumSquares: 1 - (1 - row.sumSquares) * r,
       centred: row.centred * r,
+      // d/ds² of the line above, r = s₀/s
+      slope: ((1 - row.sumSquares) * r) / (2 * variance),
       tilt: top + (row.tilt - top) * r * r,
       tiltMean: row.tiltMean * r,
     };
@@ -603,7 +610,7 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadrat
     // s²/n + s⁴(1 − 1/n)² and mean s²(1 − 1/n); the Jacobian's share to zeroth order
     for (let n = minKeys; n <= maxKeys; n++) {
       const spread = 1 - 1 / n;
-      rows.push({ sumSquares: (1 + variance * spread) / n, centred: spread / n, tilt: 1 / n + variance * spread * spread, tiltMean: spread });
+      rows.push({ sumSquares: (1 + variance * spread) / n, centred: spread / n, slope: spread / n, tilt: 1 / n + variance * spread * spread, tiltMean: spread });
     }
     return rows;
   }
@@ -650,6 +657,7 @@ function softmaxRows(variance: number, minKeys: number, maxKeys: number, quadrat
     rows.push({
       sumSquares: S,
       centred: Math.max(S + n * p4 + n * (n - 1) * p2p2 - 2 * n * p3, 0),
+      slope: Math.max(S + 3 * (n * p4 + n * (n - 1) * p2p2) - 4 * n * p3, 0),
       tilt: (n * p2z2 + n * (n - 1) * pzpz) / variance,
       tiltMean: (n * pz) / variance,
     });

@@ -66,10 +66,27 @@ describe("gaussianSoftmaxRows", () => {
         const s2 = p * p + (1 - p) * (1 - p);
         return s2 + s2 * s2 - 2 * (p ** 3 + (1 - p) ** 3);
       }, q);
+      const slope = gaussianExpectation((w) => {
+        const p = sigmoid(w);
+        const s2 = p * p + (1 - p) * (1 - p);
+        return s2 + 3 * s2 * s2 - 4 * (p ** 3 + (1 - p) ** 3);
+      }, q);
       const tilt = (variance / 2 + gaussianExpectation((w) => (w * (sigmoid(w) - 0.5)) ** 2, q)) / variance;
       expect(row.sumSquares, `S at s² = ${variance}`).toBeCloseTo(S, 6);
       expect(row.centred, `centred at s² = ${variance}`).toBeCloseTo(centred, 6);
       expect(row.tilt, `tilt at s² = ${variance}`).toBeCloseTo(tilt, 6);
+      // a difference of terms up to 4·S: held to the nodes' stated 1e-6 (toBeCloseTo(…, 6) asks 5e-7)
+      expect(Math.abs(row.slope - slope), `slope at s² = ${variance}`).toBeLessThan(1e-6);
+    }
+  });
+
+  it("the heat equation: E[S + 3S² − 4Σp³] = ½·E[Δ_z S] is dE[S]/ds², the central difference of E[S] (within 1e-5, relative)", () => {
+    // d/dt E[f(z + √t·w)] = ½·E[Δf] (common practice); the step 1e-3·s² leaves a difference error of order 1e-6
+    for (const [variance, n] of [[0.25, 2], [1, 32], [9, 64], [64, 128], [400, 64], [5000, 64]] as const) {
+      const h = 1e-3 * variance;
+      const difference = (gaussianSoftmaxRow(variance + h, n)!.sumSquares - gaussianSoftmaxRow(variance - h, n)!.sumSquares) / (2 * h);
+      const row = gaussianSoftmaxRow(variance, n)!;
+      expect(Math.abs(row.slope / difference - 1), `s² = ${variance}, n = ${n}`).toBeLessThan(1e-5);
     }
   });
 
@@ -109,6 +126,8 @@ describe("gaussianSoftmaxRows", () => {
       for (const key of ["sumSquares", "centred", "tilt", "tiltMean"] as const) {
         expect(Math.abs(one[key] - all[key]), `${key} at s² = ${variance}, n = ${n}`).toBeLessThanOrEqual(1e-11 * Math.abs(all[key]));
       }
+      // the slope, S + 3S² − 4Σp³, cancels terms up to 4·S near one-hot rows: held relative to those
+      expect(Math.abs(one.slope - all.slope), `slope at s² = ${variance}, n = ${n}`).toBeLessThanOrEqual(1e-11 * 4 * all.sumSquares);
     }
     expect(gaussianSoftmaxRow(Number.NaN, 4)).toBeUndefined();
   });
