@@ -472,7 +472,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
 const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "attention"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
-const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "flatten"]);
+const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "flatten", "attention"]);
 
 /**
  * What a gradient keeps on its way down: only the rectifier right before a max-pool may use the arg-max position,
@@ -483,8 +483,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (layer.family !== "max-pool" && input.windowMaximum !== undefined) delete input.windowMaximum;
   if (layer.family !== "activation" && input.reluGated !== undefined) delete input.reluGated;
   if (input.shared === undefined && gradient.shared !== undefined && gradient.q > 0) input.shared = gradient.shared * (input.q / gradient.q);
-  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens
-  // and residual blocks only (see Curvature)
+  // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens,
+  // attention and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
   if (layer.family !== "dense" && layer.family !== "activation") {
     // the shared part's own spread is carried on through layer and RMS norms, dropout and residual blocks as well

@@ -39,6 +39,7 @@ import { densePullback } from "../dense/analytic.js";
 import type {
   AnalyticRule,
   BackwardResult,
+  Curvature,
   Factor,
   ForwardResult,
   Gradient,
@@ -74,6 +75,8 @@ interface RowSums {
    * even row, far less for a concentrated one (Σp³ ≥ S² by Cauchy–Schwarz); nothing for a row of one key
    */
   centredSquares: number;
+  /** mean over rows of dE[S]/d(s²) = E[S + 3S² − 4Σp³] (gaussianSoftmaxRows): how the rows concentrate as the logits spread */
+  slope: number;
   /** E[p²] over the unmasked elements */
   elementSecond: number;
   /** unmasked elements per row on average; 1/keys is Σ_j p_ij·p_kj for two rows i ≠ k at initialisation */
@@ -165,12 +168,13 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   const rows = causal ? gaussianSoftmaxRows(variance, positions) : [gaussianSoftmaxRow(variance, positions)].filter((r) => r !== undefined);
   let result: RowSums;
   if (rows.length < (causal ? positions : 1) || positions < 1) {
-    result = { sumSquares: NaN, centredSquares: NaN, elementSecond: NaN, keys: positions, rowLog2Variance: 0, tiltExcess: NaN };
+    result = { sumSquares: NaN, centredSquares: NaN, slope: NaN, elementSecond: NaN, keys: positions, rowLog2Variance: 0, tiltExcess: NaN };
   } else if (!causal) {
     const row = rows[0] as SoftmaxRowMoments;
     result = {
       sumSquares: row.sumSquares,
       centredSquares: row.centred,
+      slope: row.slope,
       elementSecond: row.sumSquares / positions,
       keys: positions,
       rowLog2Variance: 0,
@@ -179,16 +183,19 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
   } else {
     let total = 0;
     let centred = 0;
+    let slope = 0;
     let tilt = 0;
     for (const row of rows) {
       total += row.sumSquares;
       centred += row.centred;
+      slope += row.slope;
       tilt += row.tilt - row.sumSquares;
     }
     const unmasked = (positions * (positions + 1)) / 2;
     result = {
       sumSquares: total / positions,
       centredSquares: centred / positions,
+      slope: slope / positions,
       elementSecond: total / unmasked,
       keys: unmasked / positions,
       rowLog2Variance: causalRowLog2Variance(positions),
@@ -595,9 +602,25 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // the same in every micro-batch: N²·E[x²]²·var_w·(row squares of the curvature each weight sees), W_o seeing M and
     // W_v (through h = W_v·x̄) M_h = W_oᵀ·M·W_o (own algebra, as dense's and the gated layer's weights)
     const curvature = output.curvature;
+    const headsCurvature = curvature === undefined ? undefined : densePullback(curvature, ctx.variance(wo), wo.fanOut, inner);
     const outputAligned = curvature === undefined ? 0 : N * N * stash.heads.q * stash.heads.q * ctx.variance(wo) * curvature.rowSquares;
-    const valueAligned =
-      curvature === undefined ? 0 : N * N * averagedInput.q * averagedInput.q * ctx.variance(wv) * densePullback(curvature, ctx.variance(wo), wo.fanOut, inner).rowSquares;
+    const valueAligned = headsCurvature === undefined ? 0 : N * N * averagedInput.q * averagedInput.q * ctx.variance(wv) * headsCurvature.rowSquares;
+    if (headsCurvature !== undefined) {
+      const expectedRow = P > 0 ? (spec.causal ? harmonic(P) : 1) / P : 0;
+      input.curvature = attentionPullback(headsCurvature, {
+        sameHead: stash.rows.sumSquares,
+        logitVariance: d * stash.query.q * stash.key.q * stash.scale2,
+        acrossHeads: expectedRow,
+        headWidth: d,
+        inner,
+        queryLogit: stash.scale2 * stash.rows.slope * stash.value.q * valueApart * stash.key.q * keyApart,
+        keyLogit: stash.scale2 * stash.rows.slope * stash.query.q * stash.value.q * valueApart,
+        value: ctx.variance(wv),
+        query: ctx.variance(wq),
+        key: ctx.variance(wk),
+        width: inWidth,
+      });
+    }
     const keyMap = ctx.variance(wk) * wk.fanIn;
     const keyRows: Gradient = { ...queryGradient, q: keyMap > 0 ? queryQ / keyMap : 0 };
     if (queryGradient.shared !== undefined && keyMap > 0) keyRows.shared = queryGradient.shared / keyMap;
@@ -614,3 +637,77 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     };
   },
 };
+
+/** What attentionPullback needs besides the curvature at the heads. */
+interface AttentionPaths {
+  /** S = Σ_i E[p_ij²] of one head, averaged over keys j (the mean row sum of squares) */
+  sameHead: number;
+  /** s², the logits' variance */
+  logitVariance: number;
+  /** Σ_i E[p_ij]·E[p'_ij] of two independent heads, averaged over keys (1/P full, H_P/P causal) */
+  acrossHeads: number;
+  headWidth: number;
+  /** H·d, the heads' features */
+  inner: number;
+  /** λ_q = c²·dE[S]/ds²·E[ṽ²]·E[k̃²]: the query path's weight of a head's tr M_h */
+  queryLogit: number;
+  /** λ_k = c²·dE[S]/ds²·E[q²]·E[ṽ²]: the key path's */
+  keyLogit: number;
+  /** var_w of the value, query and key projections */
+  value: number;
+  query: number;
+  key: number;
+  /** D, the input's width */
+  width: number;
+}
+
+/**
+ * The loss's curvature at attention's input, A = E[∂δ_x/∂x] at one position (by Stein's lemma E[x_i·δ_i] = E[x²]·A_ii,
+ * what the layers below sum), from M_h = W_oᵀ·M·W_o at the heads (inner = H·d features), by the three paths, whose
+ * independent weights leave no mean between them but on the diagonal (own algebra; positions independent, x Gaussian):
+ *   value path: Σ_h,h' K_hh'·W_v,hᵀ·(M_h)_hh'·W_v,h' with K_hh' = Σ_i E[p_ij·p'_ij], S within a head (plus the tilt:
+ *     p_ij grows with x_j along the row's key direction a, and the row's average leans along a by Σ_l p_l z_l, so
+ *     E[(1 − S)·Σ_l p_l z_l]/D ≈ s²·(1 − S)²/D more, one of the input's D directions) and the product of the expected
+ *     weights across two heads;
+ *   query path: E[∂δq/∂q] over q ~ N(0, E[q²]·I) has trace 2·dE[Φ]/dE[q²] (the heat equation), Φ = ½·oᵀ·M·o holding
+ *     ½·tr M_hh·E[ṽ²]·S(s²) for head h, so W_q,hᵀ·(λ_q·tr M_hh)·W_q,h, λ_q = c²·S'(s²)·E[ṽ²]·E[k̃²]; it vanishes for
+ *     one-hot rows, whose Φ does not change with |q|;
+ *   key path: the same through all keys at once, W_k,hᵀ·(λ_k·tr M_hh)·W_k,h, λ_k = c²·S'(s²)·E[q²]·E[ṽ²].
+ * Each is a dense pull-back of an inner-space matrix (densePullback), the diagonal entries of M_h taken as independent.
+ */
+function attentionPullback(heads: Curvature, paths: AttentionPaths): Curvature {
+  const { inner, headWidth: d, width } = paths;
+  const apart = 1 - paths.sameHead;
+  const same = paths.sameHead + (paths.logitVariance * apart * apart) / Math.max(width, 1);
+  const across = paths.acrossHeads;
+  // K ∘ M_h: a row's inner − 1 off-diagonal entries, d − 1 of them within the head
+  const offSquare = inner > 1 ? Math.max(heads.rowSquares - heads.diagonalSquare, 0) / (inner - 1) : 0;
+  const masked: Curvature = {
+    diagonal: same * heads.diagonal,
+    diagonalSquare: same * same * heads.diagonalSquare,
+    rowSquares: same * same * heads.diagonalSquare + (same * same * (d - 1) + across * across * (inner - d)) * offSquare,
+  };
+  // a head's trace, tr M_hh = Σ of its d diagonal entries
+  const trace = d * heads.diagonal;
+  const traceSquare = trace * trace + d * Math.max(heads.diagonalSquare - heads.diagonal * heads.diagonal, 0);
+  const logit = (lambda: number): Curvature => ({ diagonal: lambda * trace, diagonalSquare: lambda * lambda * traceSquare, rowSquares: lambda * lambda * traceSquare });
+  const parts = [
+    densePullback(masked, paths.value, inner, width),
+    densePullback(logit(paths.queryLogit), paths.query, inner, width),
+    densePullback(logit(paths.keyLogit), paths.key, inner, width),
+  ];
+  // independent weights: the parts' entries add, and their squares with twice the products of the diagonals' means
+  let diagonal = 0;
+  let diagonalSquare = 0;
+  let rowSquares = 0;
+  let means = 0;
+  for (const part of parts) {
+    means += 2 * diagonal * part.diagonal;
+    diagonal += part.diagonal;
+    diagonalSquare += part.diagonalSquare;
+    rowSquares += part.rowSquares;
+  }
+  const pulled: Curvature = { diagonal, diagonalSquare: diagonalSquare + means, rowSquares: rowSquares + means };
+  if (heads.indefinite === true) pulled.indefinite = true;
+  return pulled;
+}
