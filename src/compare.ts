@@ -2,12 +2,12 @@
  * Precision plans side by side: which ones train safely, what breaks first in the others, and what each costs
  * in bytes per parameter and per activation element. The cheapest plan that trains safely ranks first.
  */
-import { check, type MeasuredNetwork } from "./check.js";
+import { check, type CheckAnswer, type MeasuredNetwork } from "./check.js";
 import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import { VERDICT_RANK, worseVerdict, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
-import type { OptimizerCheck } from "./scale/optimizer.js";
+import { OPTIMIZER_THRESHOLDS, type OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
 
 const base = { overflow: "saturate", flushSubnormals: false, scaling: "none" } as const;
@@ -65,6 +65,14 @@ export interface PlanOutcome {
   /** the worse of the check and the optimizer */
   verdict: Verdict;
   trainsSafely: boolean;
+  /**
+   * how broken the plan is, what failing plans are ranked by: its findings that fail and those at risk, counting each
+   * finding of the formats (a tensor or an operation in one format), each weight whose updates are lost (graded as the
+   * optimizer check grades them: more than 1e-2 of the update's squared norm at the peak learning rate fails, more
+   * than 1e-4 anywhere is at risk) and an empty loss-scale window once (at risk when a dynamic scale is expected to
+   * cope, else failing)
+   */
+  findingCounts: FindingCounts;
   /** the first thing that breaks (or is at risk), one sentence; null when nothing does */
   firstProblem: string | null;
   cost: PlanCost;
@@ -72,6 +80,12 @@ export interface PlanOutcome {
   savedShare: number;
   /** whether the plan stores every tensor as the baseline does (its saved share is 0 by definition) */
   storesAsBaseline: boolean;
+}
+
+/** Findings of a plan by severity (see `PlanOutcome.findingCounts`). */
+export interface FindingCounts {
+  fails: number;
+  atRisk: number;
 }
 
 export interface PlanComparison {
@@ -143,8 +157,9 @@ export interface CompareOptions {
 }
 
 /**
- * Evaluate the standard plans (or the spec's own, when `own` is set) and rank them: plans that train safely
- * first, the cheapest of those first; then the rest, least broken first. With `measurements`, every plan is judged
+ * Evaluate the standard plans (or the spec's own, when `own` is set) and rank them: plans not expected to fail
+ * first, the cheapest of those first; then the rest, least broken first (fewest failing findings, then fewest at
+ * risk: `findingCounts`), the cheaper of two equally broken first. With `measurements`, every plan is judged
  * with the spec's measured weights and statistics.
  * @example comparePlans(spec).outcomes[0].plan.name // => "bfloat16 with master copy"
  */
@@ -180,6 +195,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       optimizer,
       verdict,
       trainsSafely: verdict !== "fails",
+      findingCounts: findingCounts(result),
       firstProblem: firstProblem(result, optimizer, answer),
       cost,
       savedShare: 0,
@@ -189,11 +205,15 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   for (const o of outcomes) {
     if (referenceBytes) o.savedShare = 1 - (o.cost.parameterBytes + o.cost.activationBytes) / referenceBytes;
   }
+  // plans not expected to fail, cheapest first; then the failing ones by how broken they are (fewest failing findings,
+  // then fewest at risk), the cheaper first when they are equally broken. A count is the measure a user can check
+  // against the findings listed; the findings' values are shares, probabilities and binades that do not compare
+  const bytes = (o: PlanOutcome) => o.cost.parameterBytes + o.cost.activationBytes;
   const ranked = [...outcomes].sort(
     (a, b) =>
       Number(b.trainsSafely) - Number(a.trainsSafely) ||
-      (a.trainsSafely ? 0 : VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict]) ||
-      a.cost.parameterBytes + a.cost.activationBytes - (b.cost.parameterBytes + b.cost.activationBytes) ||
+      (a.trainsSafely ? 0 : a.findingCounts.fails - b.findingCounts.fails || a.findingCounts.atRisk - b.findingCounts.atRisk) ||
+      bytes(a) - bytes(b) ||
       VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict],
   );
   return {
@@ -244,11 +264,64 @@ function firstProblem(result: CheckResult, optimizer: OptimizerCheck, answer: Lo
   return optimizer.reasons[0] ?? failing?.reasons[0] ?? null;
 }
 
+/**
+ * A plan's findings by severity: the formats' findings, each weight whose updates are lost (graded by
+ * OPTIMIZER_THRESHOLDS as checkOptimizer grades its worst; its state findings are among the formats' hazard findings
+ * already), and an empty loss-scale window that counts in the verdict (graded as check grades it).
+ */
+export function findingCounts(result: CheckAnswer): FindingCounts {
+  const counts: FindingCounts = { fails: 0, atRisk: 0 };
+  const add = (verdict: Verdict) => {
+    if (verdict === "fails") counts.fails += 1;
+    else if (verdict === "at-risk") counts.atRisk += 1;
+  };
+  for (const format of result.formats) for (const finding of format.findings) add(finding.severity);
+  // the optimizer's lost updates count only when they count in its verdict (its update format was judged)
+  if (result.optimizer.verdict !== "fits") {
+    for (const t of result.optimizer.tensors) {
+      const peak = Math.max(0, ...t.updates.filter((u) => u.at === "peak").map((u) => u.planned));
+      const anywhere = Math.max(0, ...t.updates.map((u) => u.planned));
+      add(anywhere <= OPTIMIZER_THRESHOLDS.lostAtRisk ? "fits" : peak > OPTIMIZER_THRESHOLDS.lostFails ? "fails" : "at-risk");
+      if ((t.decayLost ?? 0) > OPTIMIZER_THRESHOLDS.decayLostAtRisk) add("at-risk");
+    }
+  }
+  const judged = result.formats.map((f) => f.format);
+  for (const answer of [result.lossScaleAnswer, ...(result.moreLossScaleAnswers ?? [])]) {
+    if (answer === null || !answer.window.empty || !judged.includes(answer.format)) continue;
+    add(answer.remedies.some((r) => r.kind === "dynamic-scale" && r.works) ? "at-risk" : "fails");
+  }
+  return counts;
+}
+
+// every stored tensor and the accumulation in binary32 or wider: no narrower format is involved
+function allBinary32OrWider(plan: PrecisionPlan): boolean {
+  const binary32 = getFormat("binary32");
+  return [plan.activations, plan.weights, plan.gradients, plan.optimizerStates, plan.accumulate, plan.masterWeights]
+    .filter((f) => f !== "none")
+    .every((f) => getFormat(f).precision >= binary32.precision && getFormat(f).exponentBits >= binary32.exponentBits);
+}
+
+function countWords(counts: FindingCounts): string {
+  const n = (k: number, what: string) => `${k} ${what}${k === 1 ? "" : "s"}`;
+  return `${n(counts.fails, "failing finding")}, ${counts.atRisk} at risk`;
+}
+
 function explain(ranked: PlanOutcome[]): string[] {
   const lines: string[] = [];
   const safe = ranked.filter((o) => o.trainsSafely);
   if (safe.length === 0) {
-    lines.push("No plan is expected to train safely; the least broken comes first.");
+    lines.push(
+      "No plan is expected to train safely. The least broken comes first: the fewest failing findings (each tensor or operation " +
+        "in each format, each weight whose updates are lost, an empty loss-scale window), then the fewest at risk, then the least memory.",
+    );
+    // binary32 failing too: narrower formats add their own findings to the network's, no format removes these
+    const wide = ranked.find((o) => allBinary32OrWider(o.plan));
+    if (wide !== undefined) {
+      lines.push(
+        `Even ${wide.plan.name}, with every tensor in binary32 or wider, is expected to fail, so no choice of format is expected to help: ` +
+          "the network or its training setup is the problem (for example gradients that vanish or explode with depth, or updates far below their weights); change it, then compare again.",
+      );
+    }
   } else {
     const best = safe[0]!;
     if (best.verdict === "fits") {
@@ -265,7 +338,7 @@ function explain(ranked: PlanOutcome[]): string[] {
     }
   }
   for (const o of ranked) {
-    if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely: ${o.firstProblem ?? "see its findings"}`);
+    if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely (${countWords(o.findingCounts)}): ${o.firstProblem ?? "see its findings"}`);
     else if (o.verdict === "at-risk") lines.push(`${o.plan.name} is expected to train, but at risk: ${o.firstProblem ?? "see its findings"}`);
   }
   return lines;

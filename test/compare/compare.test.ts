@@ -34,6 +34,12 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
           expect(line.slice(o.plan.name.length)).toMatch(/^ is (the cheapest plan|expected to train|not expected to)/);
         }
       }
+      // the counts failing plans are ranked by agree with the verdict check gives: a plan fails exactly when one of its
+      // findings fails, and fits exactly when it has none
+      for (const o of comparison.outcomes) {
+        expect(o.findingCounts.fails > 0, o.plan.name).toBe(o.verdict === "fails");
+        expect(o.findingCounts.fails + o.findingCounts.atRisk === 0, o.plan.name).toBe(o.verdict === "fits");
+      }
       // plans that train safely come before those that do not, and among them the cheapest first
       const safe = comparison.outcomes.filter((o) => o.trainsSafely);
       expect(comparison.outcomes.slice(0, safe.length)).toEqual(safe);
@@ -41,6 +47,39 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
       expect([...bytes].sort((a, b) => a - b)).toEqual(bytes);
     });
   }
+});
+
+describe("ranking failing plans", () => {
+  it("puts the least broken first, and says the network is the problem when binary32 fails too (deep-sigmoid)", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/deep-sigmoid.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const comparison = comparePlans(loaded.spec);
+    const names = comparison.outcomes.map((o) => o.plan.name);
+    expect(comparison.outcomes.every((o) => o.verdict === "fails")).toBe(true);
+    // fewest failing findings first, then fewest at risk
+    const keys = comparison.outcomes.map((o) => [o.findingCounts.fails, o.findingCounts.atRisk] as const);
+    const sorted = [...keys].sort((a, b) => a[0] - b[0] || a[1] - b[1]);
+    expect(keys).toEqual(sorted);
+    // bfloat16 with no master copy loses the updates of more weights than a binary32 master copy does (its weights'
+    // 8-bit significand against binary32's 24, IEEE 754-2019 Table 3.5; Kalamkar et al. 2019), so it ranks below
+    // binary32, whose failures are the network's own (Glorot & Bengio 2010 sec. 3: sigmoid gradients vanish with depth)
+    const f32 = comparison.outcomes.find((o) => o.plan.name === "binary32")!;
+    const bare = comparison.outcomes.find((o) => o.plan.name === "bfloat16 only")!;
+    expect(bare.findingCounts.fails).toBeGreaterThan(f32.findingCounts.fails);
+    expect(names.indexOf("binary32")).toBeLessThan(names.indexOf("bfloat16 only"));
+    // the cheapest of the failing plans does not come first for being cheap
+    expect(names[0]).not.toBe("bfloat16 only");
+    // binary32 failing: no format helps, the network is the problem
+    expect(comparison.explanation[1]).toMatch(/^Even binary32, .* no choice of format is expected to help: the network/);
+  });
+
+  it("says nothing of the network when a plan is expected to train", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/wide-classifier.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    expect(comparePlans(loaded.spec).explanation.join(" ")).not.toMatch(/no choice of format/);
+  });
 });
 
 describe("plan costs", () => {
