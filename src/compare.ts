@@ -5,7 +5,7 @@
 import { check, type CheckAnswer, type MeasuredNetwork } from "./check.js";
 import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
-import { VERDICT_RANK, worseVerdict, type CheckResult, type Verdict } from "./risk/index.js";
+import { VERDICT_RANK, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import { OPTIMIZER_THRESHOLDS, type OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
@@ -59,12 +59,14 @@ export interface PlanOutcome {
   /** the loss scale the plan was judged with (the window's pick when the plan gives none), or null */
   lossScale: number | null;
   lossScaleAnswer: LossScaleAnswer | null;
-  /** the check's verdict under that loss scale */
-  checkVerdict: Verdict;
   optimizer: OptimizerCheck;
-  /** the worse of the check and the optimizer */
+  /**
+   * the verdict `check` gives the spec with this plan as its precision (its formats, the optimizer and the loss scale):
+   * an estimate, as every verdict is; a plan is expected to train when it is not "fails"
+   */
   verdict: Verdict;
-  trainsSafely: boolean;
+  /** the verdict of each format of the plan, in the order `check` judges them (the optimizer and the loss scale not counted) */
+  formats: { format: string; verdict: Verdict }[];
   /**
    * how broken the plan is, what failing plans are ranked by: its findings that fail and those at risk, counting each
    * finding of the formats (a tensor or an operation in one format), each weight whose updates are lost (graded as the
@@ -191,10 +193,9 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       fromSpec: own.includes(plan),
       lossScale,
       lossScaleAnswer: answer,
-      checkVerdict: result.formats.reduce((worst, f) => worseVerdict(worst, f.verdict), "fits" as Verdict),
       optimizer,
       verdict,
-      trainsSafely: verdict !== "fails",
+      formats: result.formats.map((f) => ({ format: f.format, verdict: f.verdict })),
       findingCounts: findingCounts(result),
       firstProblem: firstProblem(result, optimizer, answer),
       cost,
@@ -211,8 +212,8 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   const bytes = (o: PlanOutcome) => o.cost.parameterBytes + o.cost.activationBytes;
   const ranked = [...outcomes].sort(
     (a, b) =>
-      Number(b.trainsSafely) - Number(a.trainsSafely) ||
-      (a.trainsSafely ? 0 : a.findingCounts.fails - b.findingCounts.fails || a.findingCounts.atRisk - b.findingCounts.atRisk) ||
+      Number(expectedToTrain(b)) - Number(expectedToTrain(a)) ||
+      (expectedToTrain(a) ? 0 : a.findingCounts.fails - b.findingCounts.fails || a.findingCounts.atRisk - b.findingCounts.atRisk) ||
       bytes(a) - bytes(b) ||
       VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict],
   );
@@ -254,6 +255,11 @@ function samePlan(a: PrecisionPlan, b: PrecisionPlan): boolean {
     a.overflow === b.overflow &&
     a.flushSubnormals === b.flushSubnormals
   );
+}
+
+/** Whether a plan is expected to train: its verdict is not "fails" (an estimate; an at-risk plan is not called safe). */
+export function expectedToTrain(outcome: Pick<PlanOutcome, "verdict">): boolean {
+  return outcome.verdict !== "fails";
 }
 
 function firstProblem(result: CheckResult, optimizer: OptimizerCheck, answer: LossScaleAnswer | null): string | null {
@@ -308,7 +314,7 @@ function countWords(counts: FindingCounts): string {
 
 function explain(ranked: PlanOutcome[]): string[] {
   const lines: string[] = [];
-  const safe = ranked.filter((o) => o.trainsSafely);
+  const safe = ranked.filter(expectedToTrain);
   if (safe.length === 0) {
     lines.push(
       "No plan is expected to train safely. The least broken comes first: the fewest failing findings (each tensor or operation " +
@@ -338,7 +344,7 @@ function explain(ranked: PlanOutcome[]): string[] {
     }
   }
   for (const o of ranked) {
-    if (!o.trainsSafely) lines.push(`${o.plan.name} is not expected to train safely (${countWords(o.findingCounts)}): ${o.firstProblem ?? "see its findings"}`);
+    if (!expectedToTrain(o)) lines.push(`${o.plan.name} is not expected to train safely (${countWords(o.findingCounts)}): ${o.firstProblem ?? "see its findings"}`);
     else if (o.verdict === "at-risk") lines.push(`${o.plan.name} is expected to train, but at risk: ${o.firstProblem ?? "see its findings"}`);
   }
   return lines;

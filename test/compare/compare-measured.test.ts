@@ -32,7 +32,6 @@ interface Outcome {
   plan: { name: string };
   fromSpec: boolean;
   verdict: string;
-  checkVerdict: string;
 }
 
 function ownOutcome(stdout: string): Outcome {

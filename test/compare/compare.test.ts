@@ -1,6 +1,7 @@
 import { readFileSync, readdirSync } from "node:fs";
 import { join } from "node:path";
 import { describe, expect, it } from "vitest";
+import { check } from "../../src/check.js";
 import { comparePlans, STANDARD_PLANS } from "../../src/compare.js";
 import { renderCompareJson, renderCompareText } from "../../src/report/compare-text.js";
 import { loadSpec } from "../../src/spec/index.js";
@@ -20,14 +21,14 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
       expect(renderCompareJson(comparison)).toBe(golden);
       // the ranking is explained: the first line names the best plan, or says none trains safely
       const best = comparison.outcomes[0]!;
-      expect(comparison.explanation[0]).toContain(best.trainsSafely ? best.plan.name : "No plan");
+      expect(comparison.explanation[0]).toContain(best.verdict !== "fails" ? best.plan.name : "No plan");
       // an at-risk plan is never called safe; when it ranks first, the cheapest plan that fits is named next to it
       if (best.verdict === "at-risk") {
         expect(comparison.explanation[0]).not.toContain("safely");
         expect(comparison.explanation[0]).toContain("at risk");
         const fitting = comparison.outcomes.find((o) => o.verdict === "fits");
         expect(comparison.explanation[1]).toEqual(fitting === undefined ? "No plan fits without a risk." : expect.stringContaining(fitting.plan.name));
-      } else if (best.trainsSafely) expect(comparison.explanation[0]).toContain("expected to train safely");
+      } else if (best.verdict !== "fails") expect(comparison.explanation[0]).toContain("expected to train safely");
       // every line about a plan speaks of an expectation: a ranking rests on estimates, never "<plan> trains"
       for (const o of comparison.outcomes) {
         for (const line of comparison.explanation.filter((l) => l.startsWith(`${o.plan.name} `))) {
@@ -41,7 +42,7 @@ describe("comparePlans on every example spec (golden results made by scripts/gol
         expect(o.findingCounts.fails + o.findingCounts.atRisk === 0, o.plan.name).toBe(o.verdict === "fits");
       }
       // plans that train safely come before those that do not, and among them the cheapest first
-      const safe = comparison.outcomes.filter((o) => o.trainsSafely);
+      const safe = comparison.outcomes.filter((o) => o.verdict !== "fails");
       expect(comparison.outcomes.slice(0, safe.length)).toEqual(safe);
       const bytes = safe.map((o) => o.cost.parameterBytes + o.cost.activationBytes);
       expect([...bytes].sort((a, b) => a - b)).toEqual(bytes);
@@ -79,6 +80,28 @@ describe("ranking failing plans", () => {
     const loaded = await loadSpec("specs/wide-classifier.yaml");
     if (!loaded.ok) throw new Error("example does not load");
     expect(comparePlans(loaded.spec).explanation.join(" ")).not.toMatch(/no choice of format/);
+  });
+});
+
+describe("a plan's verdict in compare is the one check gives", () => {
+  it("bfloat16 only on deep-sigmoid: fails in compare as in check, whose formats fit but whose updates are lost", async () => {
+    process.chdir(ROOT);
+    const loaded = await loadSpec("specs/deep-sigmoid.yaml");
+    if (!loaded.ok) throw new Error("example does not load");
+    const json = JSON.parse(renderCompareJson(comparePlans(loaded.spec))) as { outcomes: Record<string, unknown>[] };
+    for (const outcome of json.outcomes) {
+      const plan = outcome.plan as (typeof STANDARD_PLANS)[number];
+      const checked = check({ ...loaded.spec, precision: plan });
+      // one verdict per plan, check's; no second verdict-like field that can disagree with it, and no boolean that
+      // reads as a guarantee (predictions are estimates)
+      expect(outcome.verdict, plan.name).toBe(checked.verdict);
+      expect(outcome.formats, plan.name).toEqual(checked.formats.map((f) => ({ format: f.format, verdict: f.verdict })));
+      for (const key of Object.keys(outcome)) expect(key).not.toMatch(/safe|^checkVerdict$/i);
+    }
+    const bare = json.outcomes.find((o) => (o.plan as { name: string }).name === "bfloat16 only")!;
+    // its formats fit, its updates are lost (bfloat16 keeps 8 significant bits, Kalamkar et al. 2019)
+    expect(bare.verdict).toBe("fails");
+    expect((bare.formats as { verdict: string }[]).every((f) => f.verdict === "fits")).toBe(true);
   });
 });
 
