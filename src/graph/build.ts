@@ -27,6 +27,8 @@ interface Walk {
   placedAny: boolean;
   count: number;
   aborted: boolean;
+  /** a layer's issue already told, by spec path and message: a block used or repeated again meets it again */
+  told: Map<string, { index: number; more: number }>;
 }
 
 /**
@@ -44,6 +46,7 @@ export function buildGraph(spec: NetworkSpec): GraphResult {
     placedAny: false,
     count: 0,
     aborted: false,
+    told: new Map(),
   };
   const input = inputShape(spec, walk);
   if (input === undefined) return { ok: false, issues: walk.issues };
@@ -55,7 +58,14 @@ export function buildGraph(spec: NetworkSpec): GraphResult {
     if (layers.length === 0 && walk.issues.length === 0) walk.issues.push({ path: ["layers"], message: "the network has no layers" });
     else if (output !== undefined) checkLoss(walk, output);
   }
-  if (walk.issues.length > 0) return { ok: false, issues: walk.issues };
+  if (walk.issues.length > 0) {
+    for (const { index, more } of walk.told.values()) {
+      if (more === 0) continue;
+      const issue = walk.issues[index] as GraphIssue;
+      issue.message += ` (the same in ${more} more repeat${more === 1 ? "" : "s"} or use${more === 1 ? "" : "s"} of this layer)`;
+    }
+    return { ok: false, issues: walk.issues };
+  }
   return {
     ok: true,
     graph: {
@@ -174,7 +184,14 @@ function expandOne(
  * closures and no context per layer.
  */
 function failAt(walk: Walk, spec: ConcreteLayerSpec, name: string, message: string): undefined {
-  walk.issues.push({ path: spec.path, message: `${name}: ${message}` });
+  // told once per layer of the spec, named by its first expansion, with a count of the others
+  const key = `${JSON.stringify(spec.path)}\n${message}`;
+  const told = walk.told.get(key);
+  if (told !== undefined) told.more++;
+  else {
+    walk.told.set(key, { index: walk.issues.length, more: 0 });
+    walk.issues.push({ path: spec.path, message: `${name}: ${message}` });
+  }
   return undefined;
 }
 
@@ -263,11 +280,7 @@ function place(
       // a channel's statistics cover batch × positions values; over one value x − mean(x) is exactly 0 (Ioffe & Szegedy
       // 2015, Algorithm 1), which no magnitude prediction describes
       if (spec.family === "batch-norm" && walk.spec.training.batch * positionCount(input) === 1) {
-        const at = JSON.stringify(spec.path);
-        // a block used or repeated again meets the same layer of the spec: told once
-        if (!walk.issues.some((issue) => JSON.stringify(issue.path) === at)) {
-          failAt(walk, spec, name, `batch-norm over one value per channel (batch 1, one ${input.layout === "image" ? "pixel" : "position"}): x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm`);
-        }
+        failAt(walk, spec, name, `batch-norm over one value per channel (batch 1, one ${input.layout === "image" ? "pixel" : "position"}): x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm`);
       }
       const n = width;
       weights.push(gain(n, spec.gain));

@@ -128,7 +128,7 @@ describe("batch norm over one value per channel", () => {
     expect(run.status).toBe(2);
     expect(run.stderr).toBe(
       `${UNBUILDABLE}/batch-norm-one-pixel.yaml:16:7: blocks.settle[0]: use-2.batch-norm-0: batch-norm over one value per channel (batch 1, one pixel): ` +
-        "x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm\n",
+        "x − mean(x) is 0, so it outputs exactly 0; use a batch above 1, or a layer-norm (the same in 1 more repeat or use of this layer)\n",
     );
   });
 });

@@ -89,6 +89,15 @@ describe("buildGraph expands blocks and repeats", () => {
     expect(found[0]?.message).toContain('"same" is used twice');
   });
 
+  test("a layer of the spec met again by a repeat is told once, with the count of the others", () => {
+    const spec = makeSpec([repeat("stack", 64, [residual("block", [dense("widen", 16)])]), dense("head", 1)], { input: features(8, 1) });
+    const found = issues(buildGraph(spec));
+    expect(found.map((f) => f.message)).toEqual([
+      "stack.0.block: the residual branch turns 1 position × 8 features into 1 position × 16 features; a branch must keep " +
+        "the shape so it can be added back (the same in 63 more repeats or uses of this layer)",
+    ]);
+  });
+
   test("every problem of a spec is told at once: the walk goes on after a problem whose next shape is known", () => {
     // a residual whose branch widens (the walk goes on with the skip's shape), a name used twice, a dense on an image
     // (taken as if flattened) and a loss whose classes do not match the last layer: four problems, one report
