@@ -244,7 +244,7 @@ function place(
     }
     case "conv2d": {
       if (input.layout !== "image") {
-        return failAt(walk, spec, name, `conv2d needs an image input (channels × height × width), got ${describeShape(input)}${input.layout === "features" ? " (a flatten or dense earlier turned the image into features)" : ""}`);
+        return failAt(walk, spec, name, `conv2d needs an image input (channels × height × width), got ${describeShape(input)}${input.layout === "features" ? (walk.spec.input.kind === "image" ? " (a flatten or dense earlier turned the image into features)" : "; describe the input as an image: channels, height, width") : ""}`);
       }
       if (!positive(spec.channels) || !positive(spec.kernel) || !positive(spec.stride)) {
         return failAt(walk, spec, name, `channels, kernel and stride must be whole numbers of at least 1`);

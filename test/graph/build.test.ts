@@ -178,8 +178,13 @@ describe("buildGraph reports shape errors with the spec path", () => {
     const c = conv("late", 8);
     const found = issues(buildGraph(makeSpec([flatten("f"), c], { input: image(3, 8, 8) })));
     expect(found[0]).toMatchObject({ path: c.path.join("."), message: expect.stringContaining("conv2d needs an image input") });
+    expect(found[0]?.message).toContain("a flatten or dense earlier turned the image into features");
     const c2 = conv("c", 8);
-    expect(issues(buildGraph(makeSpec([c2])))[0]?.path).toBe(c2.path.join("."));
+    const onFeatures = issues(buildGraph(makeSpec([c2])));
+    expect(onFeatures[0]?.path).toBe(c2.path.join("."));
+    // no layer came before it: the input itself is features
+    expect(onFeatures[0]?.message).not.toContain("earlier");
+    expect(onFeatures[0]?.message).toContain("describe the input as an image");
   });
 
   test("token input needs an embedding first, and an embedding cannot come later", () => {
