@@ -14,7 +14,8 @@ export async function runExplain(path: string, words: string[], flags: JudgeFlag
     const list = found.candidates.join(", ");
     throw new UserError(
       found.reason === "ambiguous"
-        ? `"${query}" names ${found.candidates.length} tensors of ${path}; give one id: ${list}`
+        ? `"${query}" names ${found.total} tensors of ${path}; give one id${found.total > found.candidates.length ? `, such as` : ""}: ${list}` +
+          (found.total > found.candidates.length ? ` (and ${found.total - found.candidates.length} more)` : "")
         : `no tensor "${query}" in ${path}; nearest ids: ${list} (\`headroom check --all ${path}\` lists every tensor)`,
     );
   }

@@ -7,7 +7,15 @@ import type { TensorCheck } from "./judge.js";
 /** A tensor found, or why none was, with the ids worth suggesting. */
 export type TensorLookup =
   | { ok: true; tensor: TensorCheck }
-  | { ok: false; reason: "ambiguous" | "not-found"; candidates: string[] };
+  | { ok: false; reason: "ambiguous"; candidates: string[]; /** how many tensors the query names (candidates may show fewer) */ total: number }
+  | { ok: false; reason: "not-found"; candidates: string[] };
+
+// ids compared with their numbers as numbers: stack.2 before stack.10
+const ORDER = new Intl.Collator("en", { numeric: true });
+
+function ambiguous(matches: readonly TensorCheck[], limit: number): TensorLookup {
+  return { ok: false, reason: "ambiguous", total: matches.length, candidates: matches.map((t) => t.id).sort(ORDER.compare).slice(0, limit) };
+}
 
 function distance(a: string, b: string): number {
   const previous = Array.from({ length: b.length + 1 }, (_, j) => j);
@@ -46,25 +54,31 @@ export function findTensor(tensors: readonly TensorCheck[], query: string, limit
     // "layer role" is the id "layer/role" written as two words: that id wins over the role's `:name` tensors
     const plain = suffix === undefined ? matches.find((tensor) => tensor.id === `${layer}/${role}`) : undefined;
     if (plain !== undefined) return { ok: true, tensor: plain };
-    if (matches.length > 1) return { ok: false, reason: "ambiguous", candidates: matches.map((t) => t.id).slice(0, limit * 4) };
+    if (matches.length > 1) return ambiguous(matches, limit * 4);
   }
 
   const ofLayer = tensors.filter((tensor) => tensor.layer === text);
   if (ofLayer.length === 1) return { ok: true, tensor: ofLayer[0] as TensorCheck };
-  if (ofLayer.length > 1) return { ok: false, reason: "ambiguous", candidates: ofLayer.map((t) => t.id) };
+  if (ofLayer.length > 1) return ambiguous(ofLayer, limit * 4);
 
-  // a layer named inside a repeat or a block is known by its name alone ("hear" for stack.0.use-0.hear): a layer whose
-  // last name is the one typed comes first, with the role typed before the others
-  const named = split === null ? null : { layer: (split[1] as string).toLowerCase(), role: split[2] as string };
+  // a layer named inside a repeat or a block is known by its name alone ("hear" for stack.0.use-0.hear): the tensors
+  // of the layers whose last name is the one typed (of the role typed, when it names any) are what the query names
+  const named = split === null ? { layer: text.toLowerCase(), role: undefined } : { layer: (split[1] as string).toLowerCase(), role: split[2] as string };
+  if (named.layer !== "") {
+    const byName = tensors.filter((tensor) => tensor.layer.toLowerCase().endsWith(`.${named.layer}`));
+    const pool = named.role === undefined ? byName : byName.filter((tensor) => tensor.role === named.role);
+    if (pool.length === 1) return { ok: true, tensor: pool[0] as TensorCheck };
+    if (pool.length > 1) return ambiguous(pool, limit);
+    // the layer is known but not the role typed: its tensors are the nearest ids
+    if (byName.length > 0) return { ok: false, reason: "not-found", candidates: byName.map((t) => t.id).sort(ORDER.compare).slice(0, limit) };
+  }
   const needle = text.toLowerCase();
   const scored = tensors
     .map((tensor) => {
       const id = tensor.id.toLowerCase();
-      const layer = tensor.layer.toLowerCase();
-      if (named !== null && named.layer !== "" && layer.endsWith(`.${named.layer}`)) return { id: tensor.id, score: tensor.role === named.role ? -2 : -1 };
-      const contains = id.includes(needle) || (needle.length >= 3 && needle.includes(layer));
+      const contains = id.includes(needle) || (needle.length >= 3 && needle.includes(tensor.layer.toLowerCase()));
       return { id: tensor.id, score: contains ? 0 : distance(needle, id) };
     })
-    .sort((a, b) => a.score - b.score || a.id.localeCompare(b.id));
+    .sort((a, b) => a.score - b.score || ORDER.compare(a.id, b.id));
   return { ok: false, reason: "not-found", candidates: scored.slice(0, limit).map((s) => s.id) };
 }

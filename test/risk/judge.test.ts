@@ -310,10 +310,39 @@ describe("findTensor", () => {
     );
     if (!parsed.ok) throw new Error("does not parse");
     const all = check(parsed.spec).tensors;
+    // both repeats' "hear" layers have an activation: the query names two tensors
     const lookup = findTensor(all, "hear activation");
     expect(lookup.ok).toBe(false);
-    expect(!lookup.ok && lookup.candidates.slice(0, 2)).toEqual(["stack.0.hear/activation", "stack.1.hear/activation"]);
-    expect(!lookup.ok && lookup.candidates.slice(2, 4)).toEqual(["stack.0.hear/activation-gradient", "stack.1.hear/activation-gradient"]);
+    expect(!lookup.ok && lookup.reason).toBe("ambiguous");
+    expect(!lookup.ok && lookup.candidates).toEqual(["stack.0.hear/activation", "stack.1.hear/activation"]);
+    // a role the layers lack: their tensors are the nearest ids
+    const role = findTensor(all, "hear weight");
+    expect(!role.ok && role.reason).toBe("not-found");
+    expect(!role.ok && role.candidates.slice(0, 2)).toEqual(["stack.0.hear/activation", "stack.0.hear/activation-gradient"]);
+  });
+
+  it("counts every tensor a query names and lists ids with their numbers in order (stack.2 before stack.10)", () => {
+    const parsed = parseSpec(
+      [
+        "input: { features: 8 }",
+        "training: { batch: 4, loss: { kind: mean-squared-error } }",
+        "layers:",
+        "  - { type: repeat, name: stack, times: 12, layers: [{ type: dense, name: mix, width: 8 }, relu] }",
+        "  - { type: dense, name: out, width: 1 }",
+      ].join("\n"),
+      "s.yaml",
+    );
+    if (!parsed.ok) throw new Error("does not parse");
+    const all = check(parsed.spec).tensors;
+    const lookup = findTensor(all, "mix weight");
+    expect(!lookup.ok && lookup.reason).toBe("ambiguous");
+    // twelve weights and their twelve biases (role weight, id suffix :bias)
+    expect(!lookup.ok && lookup.reason === "ambiguous" && lookup.total).toBe(24);
+    expect(!lookup.ok && lookup.candidates.slice(0, 3)).toEqual(["stack.0.mix/weight", "stack.0.mix/weight:bias", "stack.1.mix/weight"]);
+    expect(!lookup.ok && lookup.candidates).not.toContain("stack.10.mix/weight");
+    // one layer of that name: found by its name alone
+    const single = findTensor(check({ ...parsed.spec, layers: parsed.spec.layers.slice(1) }).tensors, "out weight");
+    expect(single.ok).toBe(true);
   });
 });
 
