@@ -3,6 +3,8 @@
  * to it, in log2 and as a multiplier, with the rule that produced it), then its risk in each judged format.
  */
 import type { LedgerEntry } from "../magnitude/types.js";
+import type { FormatName } from "../formats/names.js";
+import { MX_BLOCK } from "../formats/index.js";
 import type { CheckResult, TensorCheck } from "../risk/index.js";
 import { formatBinades, formatPercent, formatProbability, formatValue } from "./number.js";
 import { verdictText, wrap } from "./check-text.js";
@@ -153,11 +155,18 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
       `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)}, ` +
       `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
       `headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}` +
-      (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, per-tensor scale 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +
+      (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, ${scaleWords(result, risk.format)} 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +
       ".";
     out += wrap(numbers, width, head, "      ");
     for (const finding of risk.findings) out += wrap(finding.sentence, width, "    - ", "      ");
   }
   out += "\n" + wrap(result.caution, width, "", "");
   return out;
+}
+
+// under per-block scale factors the flushing and clipping follow each block; the tensor-wide scale is what the headroom
+// and footroom above are read at
+function scaleWords(result: CheckResult, format: FormatName): string {
+  const scaling = result.formats.find((f) => f.format === format)?.scaling;
+  return scaling === "block" ? `per-block scale factors (blocks of ${MX_BLOCK.size}), headroom and footroom at the tensor scale` : "per-tensor scale";
 }

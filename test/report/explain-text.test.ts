@@ -49,6 +49,16 @@ describe("renderExplainText", () => {
     expect(text).toMatch(/\n {2}e5m2: (fits|at risk|fails); flushed/);
   });
 
+  it("names the scale factors as the plan applies them: per tensor, or per block (OCP MX v1.0: blocks of 32)", () => {
+    const tensor = result.tensors.find((t) => t.id === "dense-0/activation-gradient")!;
+    expect(renderExplainText(result, tensor, { width: 400 })).toContain(", per-tensor scale 2^");
+    if (!parsed.ok) throw new Error("unreachable");
+    const blocks = check({ ...parsed.spec, precision: { ...parsed.spec.precision, scaling: "block" } }, { ledger: true, everyFormat: true });
+    const text = renderExplainText(blocks, blocks.tensors.find((t) => t.id === "dense-0/activation-gradient")!, { width: 400 });
+    expect(text).toContain(", per-block scale factors (blocks of 32), headroom and footroom at the tensor scale 2^");
+    expect(text).not.toContain("per-tensor scale");
+  });
+
   it("writes a running total that rounds to zero as 0.00, not -0.00", () => {
     const tensor = result.tensors.find((t) => t.id === "relu-1/activation")!;
     // an embedding multiplier then a norm that undoes it, leaving -1e-4 binades
