@@ -38,9 +38,10 @@ function signed(log2: number): string {
   return log2 > 0 && text !== "0.00" ? `+${text}` : text;
 }
 
-/** The layers that shrink (most negative log2) or grow (most positive) the tensor most, up to `count` each; factors that read 0.00 are neither. */
+/** The layers that shrink (most negative log2) or grow (most positive) the tensor most, up to `count` each; factors that read 0.00 are neither, nor the profile's closing entries. */
 export function strongestFactors(ledger: readonly LedgerEntry[], count = 3): { shrink: LedgerEntry[]; grow: LedgerEntry[] } {
-  const sorted = [...ledger].sort((a, b) => a.log2Factor - b.log2Factor);
+  // the closing "(profile)" entries turn the mean square into the reported rms: bookkeeping, not a layer to change
+  const sorted = ledger.filter((entry) => entry.layer !== "(profile)").sort((a, b) => a.log2Factor - b.log2Factor);
   return {
     shrink: sorted.filter((entry) => entry.log2Factor <= -SHOWN_LOG2).slice(0, count),
     grow: sorted.filter((entry) => entry.log2Factor >= SHOWN_LOG2).reverse().slice(0, count),

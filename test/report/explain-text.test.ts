@@ -16,6 +16,12 @@ describe("strongestFactors", () => {
     expect(shrink.map((e) => e.layer)).toEqual(["norm"]);
     expect(grow.map((e) => e.layer)).toEqual(["table", "zeros"]);
   });
+
+  it("names layers only: the profile's closing entries (exact zeros, the finite-width median) are not among them", () => {
+    const { shrink, grow } = strongestFactors([entry("dense-3", 0.5), entry("(profile)", 0.5), entry("(profile)", -0.2), entry("norm", -0.1)]);
+    expect(grow.map((e) => e.layer)).toEqual(["dense-3"]);
+    expect(shrink.map((e) => e.layer)).toEqual(["norm"]);
+  });
 });
 
 // A small 8-bit plan with per-tensor scale factors: e4m3 holds the forward pass, e5m2 the gradients
