@@ -59,6 +59,7 @@ const GRADIENT_SUM_FLUSH = 7;
 const EPSILON_KEPT = 8;
 const EPSILON_FLUSHED = 9;
 const SECOND_MOMENT = 10;
+const GRADIENT_SUM_ERROR = 11;
 
 /**
  * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
@@ -378,6 +379,20 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `The sum of ${Math.max(1, site.terms)} gradient contributions of ${gradientOf(site)} (rms ${plainNumber(draft.extra)} after the loss ` +
         `scale) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
+    case GRADIENT_SUM_ERROR: {
+      const terms = Math.max(1, site.terms);
+      const said =
+        `Summed in ${format}, the gradient format, the ${terms} gradient contributions of ${gradientOf(site)} carry a relative ` +
+        `rounding error of about √n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
+      if (verdict === "fits") return `${said}.`;
+      // the most contributions whose √n·u stays within the at-risk threshold: n ≤ (threshold/u)²
+      const most = Math.floor((context.thresholds.accumulationAtRisk / context.gradients.unitRoundoff) ** 2);
+      const remedies = [
+        context.gradients.unitRoundoff > FORMATS.binary32.unitRoundoff ? "accumulate the sum in binary32" : "",
+        most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
+      ].filter((x) => x !== "");
+      return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
+    }
     case GRADIENT_SUM_FLUSH:
       return (
         `If each worker divides the gradients of ${gradientOf(site)} by ${context.workers} before the sum, ` +
@@ -618,6 +633,11 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
     putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
+  // The sum's own rounding error, judged as an accumulation is (above): held in the gradient format, as the plan names
+  // no other for it, n = terms give √n·u for terms of random sign (Higham & Mary 2019, Theorem 2.4), n·u at worst
+  // (Higham 2002, §4.2); theorem and section from memory, unconfirmed
+  putGraded(list, limits, "gradients", "relative-error", "accumulation-error", Math.sqrt(terms) * limits.unitRoundoff, null,
+    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
 }
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment

@@ -53,12 +53,17 @@ export function scaledFindings(result: CheckResult, format: FormatName, subjects
   for (const h of result.hazards) {
     if (!isScaledSite(h.kind)) continue;
     for (const f of h.findings) {
-      if (f.format !== format) continue;
+      if (f.format !== format || !movesWithScale(f)) continue;
       add(counted, f);
       subjects?.sites.add(h.layer);
     }
   }
   return counted;
+}
+
+// a gradient sum's rounding error is relative (√n·u), the same at every scale: not a finding the scale moves
+function movesWithScale(f: Finding): boolean {
+  return f.kind !== "accumulation-error";
 }
 
 function none(): ScaledFindings {
@@ -146,6 +151,7 @@ export function weighPick(
     const found = none();
     let stopped = false;
     judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i) => {
+      if (!movesWithScale(f)) return true;
       add(found, f);
       if (seen[i] === 0) {
         seen[i] = 1;
