@@ -953,17 +953,31 @@ function rowLog(kind: number, a: number, k: number): number {
   row.values[k - row.base] = log;
   return log;
 }
-// Lagrange weights at s over the points 0 … TABLE_POINTS − 1
+// Lagrange weights at s over the points 0 … TABLE_POINTS − 1: Π_{m≠k}(s − m)/(k − m), the numerator as the product
+// of the factors below k and above k (running products from either end), the denominator's inverse taken once
 const X_WEIGHTS = new Float64Array(TABLE_POINTS);
 const S_WEIGHTS = new Float64Array(TABLE_POINTS);
-function lagrangeWeights(into: Float64Array, s: number): void {
+const LAGRANGE_SCALE = (() => {
+  const scale = new Float64Array(TABLE_POINTS);
   for (let k = 0; k < TABLE_POINTS; k++) {
-    let basis = 1;
-    for (let m = 0; m < TABLE_POINTS; m++) if (m !== k) basis *= (s - m) / (k - m);
-    into[k] = basis;
+    let denominator = 1;
+    for (let m = 0; m < TABLE_POINTS; m++) if (m !== k) denominator *= k - m;
+    scale[k] = 1 / denominator;
+  }
+  return scale;
+})();
+function lagrangeWeights(into: Float64Array, s: number): void {
+  let below = 1;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    into[k] = below * (LAGRANGE_SCALE[k] as number);
+    below *= s - k;
+  }
+  let above = 1;
+  for (let k = TABLE_POINTS - 1; k >= 0; k--) {
+    into[k] = (into[k] as number) * above;
+    above *= s - k;
   }
 }
-const PATCH = new Float64Array(TABLE_POINTS * TABLE_POINTS);
 // the point S_WEIGHTS were last taken at (NaN: never)
 const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
 // the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
@@ -977,17 +991,6 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
   const firstRow = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
   const u = x / ROW_STEP;
   const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
-  for (let r = 0; r < TABLE_POINTS; r++) {
-    const row = rowLogs(kind, firstRow + r, first, first + TABLE_POINTS - 1);
-    const values = row.values;
-    const at = first - row.base;
-    for (let k = 0; k < TABLE_POINTS; k++) {
-      let log = values[at + k] as number;
-      if (log !== log) log = rowLog(kind, firstRow + r, first + k);
-      if (log > 0) return NaN;
-      PATCH[r * TABLE_POINTS + k] = log;
-    }
-  }
   lagrangeWeights(X_WEIGHTS, u - first);
   // the calls for one profile share its spread
   const s = v - firstRow;
@@ -997,9 +1000,17 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
   }
   let result = 0;
   for (let r = 0; r < TABLE_POINTS; r++) {
-    let row = 0;
-    for (let k = 0; k < TABLE_POINTS; k++) row += (X_WEIGHTS[k] as number) * (PATCH[r * TABLE_POINTS + k] as number);
-    result += (S_WEIGHTS[r] as number) * row;
+    const row = rowLogs(kind, firstRow + r, first, first + TABLE_POINTS - 1);
+    const values = row.values;
+    const at = first - row.base;
+    let sum = 0;
+    for (let k = 0; k < TABLE_POINTS; k++) {
+      let log = values[at + k] as number;
+      if (log !== log) log = rowLog(kind, firstRow + r, first + k);
+      if (log > 0) return NaN;
+      sum += (X_WEIGHTS[k] as number) * log;
+    }
+    result += (S_WEIGHTS[r] as number) * sum;
   }
   return Math.min(1, Math.max(0, Math.exp(result)));
 }
@@ -1041,6 +1052,9 @@ function crossing(f: (v: number) => number, p: number, decreasing: boolean, tole
 // The lattice of mixtureCrossing: g at v = m·step for integer m, memoised in one reused window (NaN: not yet
 // evaluated). g is a closure (mixtureCrossing) or the law integrand at r = 1, t = 2^v (lawMixtureCrossing).
 let lattice = new Float64Array(2048);
+// the lattice holds an earlier search's values until its first sum here clears it: a search whose mixtures are all read
+// off the rows (the Gaussian share below) never touches it, and 2048 points cost more to clear than the search
+let latticeStale = true;
 let latticeBase = 0;
 let latticeStep = 0;
 // Lattice points are numbered from the search's start: point m stands at v = (origin + m)·step, the origin held in
@@ -1152,6 +1166,10 @@ function latticeMixture(j: number): number {
   const w = DRAW_NODES.w;
   const count = w.length;
   const half = (count - 1) / 2;
+  if (latticeStale) {
+    lattice.fill(NaN);
+    latticeStale = false;
+  }
   latticeCover(j + half - (count - 1), j + half);
   // the sum runs from the highest point down; where the high limit is 0, the terms above its first point add
   // exact zeros to a sum of 0, and are skipped
@@ -1291,7 +1309,7 @@ function latticeCrossing(spread: number, p: number, decreasing: boolean, direct:
   // a search with a far crossing (a spread near 0 puts the lattice points close together) grows the lattice; the
   // next search starts from the usual size again rather than clearing the grown one each time
   if (lattice.length > 2048) lattice = new Float64Array(2048);
-  lattice.fill(NaN);
+  latticeStale = true;
   mixtureCount = 0;
   // the search starts at point 0; + 0 turns a −0 from Math.round into +0
   const origin = Math.round(direct / step) + 0;
