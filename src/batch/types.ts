@@ -38,7 +38,15 @@ export interface WorstSummary {
   label: string;
   value: number;
   measure: RiskMeasure;
+  /**
+   * what `value` counts: `subject`, the subject alone; `network`, every weight of the network (Adam's zero second
+   * moments with epsilon rounded to 0, counted over all weight gradients, `subject` being the layer holding the most)
+   */
+  scope: ValueScope;
 }
+
+/** What a finding's number counts: its subject alone, or the whole network (see `WorstSummary.scope`). */
+export type ValueScope = "subject" | "network";
 
 /** What a batch row says about one evaluated spec. */
 export interface SpecSummary {

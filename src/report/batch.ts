@@ -70,6 +70,14 @@ export function formatRiskValue(worst: Pick<WorstSummary, "value" | "measure">):
 }
 
 /**
+ * A worst finding's risk cell, its label and number, saying when the number counts the whole network rather than the
+ * subject named beside it: "zero second moments 12M elements across the network (most in this layer)".
+ */
+export function worstRiskText(worst: Pick<WorstSummary, "label" | "value" | "measure" | "scope">): string {
+  return `${worst.label} ${formatRiskValue(worst)}${worst.scope === "network" ? " across the network (most in this layer)" : ""}`;
+}
+
+/**
  * A row's loss-scale pick and window cells: the one answer's, or, when the check answered for several gradient formats
  * (`check --format A,B`), each format's joined by "; " and led by its name ("e5m2 2^13; bfloat16 not needed").
  */
@@ -198,7 +206,7 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
       s.lossScale.status === "not-evaluated" ? style.role("muted", scale.pick) : scale.pick,
       s.lossScale.status === "not-evaluated" ? "" : scale.window,
       s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
-      s.worst ? `${s.worst.label} ${formatRiskValue(s.worst)}` : "",
+      s.worst ? worstRiskText(s.worst) : "",
     ];
   });
   let out = renderTable(columns, cells, { styleHeader: (text) => style.role("strong", text) });
@@ -271,6 +279,7 @@ export const BATCH_CSV_HEADER = [
   "error_column",
   "loss_scales",
   "error_issues",
+  "worst_scope",
 ] as const;
 
 /** RFC 4180 CSV: a header, then one record per row, CRLF line ends; one column per known format. */
@@ -297,6 +306,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
         row.error.position?.column ?? "",
         "",
         (row.error.issues?.map((issue) => issue.message) ?? [row.error.message]).join("\n"),
+        "",
       ];
     }
     const s = row.summary;
@@ -320,6 +330,7 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
       "",
       lossScalesCsvCell(s),
       "",
+      s.worst?.scope ?? "",
     ];
   });
   return renderCsv(BATCH_CSV_HEADER, records);
@@ -351,7 +362,7 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
       s.lossScale.status === "not-evaluated" ? { markdown: "_not evaluated_" } : scale.pick,
       s.lossScale.status === "not-evaluated" ? "" : scale.window,
       s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
-      s.worst ? `${s.worst.label} ${formatRiskValue(s.worst)}` : "",
+      s.worst ? worstRiskText(s.worst) : "",
     ];
   });
   let out = `**headroom batch**: ${escapeMarkdown(batchCountLine(rows))}\n\n`;

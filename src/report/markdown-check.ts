@@ -3,12 +3,12 @@
  * the worst findings and the loss scale. Pure.
  */
 import { escapeMarkdown, markdownCode, markdownList, markdownTable } from "./markdown.js";
-import { formatRiskValue, verdictWords } from "./batch.js";
+import { verdictWords, worstRiskText } from "./batch.js";
 import { lossScaleClause, lossScaleSummaries, namesGradientFormats } from "./loss-scale.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
-import { FINDING_WORDS, findingsWorstFirst, PLAN_ENTRY_WORDS } from "./summary.js";
+import { FINDING_WORDS, findingScope, findingsWorstFirst, PLAN_ENTRY_WORDS } from "./summary.js";
 import { formatValue } from "./number.js";
 import { planSettings } from "./plan-settings.js";
 
@@ -51,7 +51,7 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
         f.format,
         verdictWords(f.severity),
         FINDING_WORDS[f.kind].label,
-        formatRiskValue({ value: f.value, measure: FINDING_WORDS[f.kind].measure }),
+        worstRiskText({ label: "", value: f.value, measure: FINDING_WORDS[f.kind].measure, scope: findingScope(result, f) }).trimStart(),
       ]),
     );
   }

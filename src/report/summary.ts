@@ -3,7 +3,7 @@
  * findings worst first, the loss-scale window when the check has one, and the one-row summary a batch
  * shows. Pure; types only from the risk and batch modules.
  */
-import type { LossScaleSummary, RiskMeasure, SpecSummary, WorstSummary } from "../batch/types.js";
+import type { LossScaleSummary, RiskMeasure, SpecSummary, ValueScope, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
 import type { PlanEntry } from "../risk/judge.js";
@@ -64,6 +64,19 @@ export function findingsWorstFirst(result: CheckResult): Finding[] {
 }
 
 /**
+ * What a finding's number counts. Adam's zero second moments at the training setup's site are counted over every
+ * weight gradient of the network, the finding naming the layer that holds the most (src/risk/hazards.ts,
+ * optimizerConstant); a site of the prediction, like every other finding, counts its own subject.
+ */
+export function findingScope(result: CheckResult, finding: Finding): ValueScope {
+  if (finding.kind !== "optimizer-epsilon-flushed") return "subject";
+  const site = result.hazards.find(
+    (h) => h.kind === "optimizer-constant" && h.findings.some((f) => f === finding || (f.format === finding.format && f.subject === finding.subject && f.value === finding.value)),
+  );
+  return site?.origin === "training setup" ? "network" : "subject";
+}
+
+/**
  * The worst finding as a row cell, or null when the check found nothing. When the optimizer check
  * is worse than every finding (updates lost to rounding), its worst weight is the row's worst tensor.
  */
@@ -79,6 +92,7 @@ export function worstOf(result: CheckResult | CheckAnswer): WorstSummary | null 
       label: "lost updates",
       value: optimizer.worst.lostShare,
       measure: "share",
+      scope: "subject",
     };
   }
   if (!worst) return null;
@@ -91,6 +105,7 @@ export function worstOf(result: CheckResult | CheckAnswer): WorstSummary | null 
     label: words.label,
     value: worst.value,
     measure: words.measure,
+    scope: findingScope(result, worst),
   };
 }
 

@@ -78,12 +78,12 @@ describe("a batch row carries every problem of its spec, each at its file:line:c
     for (const { line, column } of PROBLEMS) expect(md).toContain(`gauge.yaml:${line}:${column}: `);
   });
 
-  test("JSON Lines has them under error.issues; CSV in the last column, one line each", async () => {
+  test("JSON Lines has them under error.issues; CSV in the column after the loss scales (columns added later come after it), one line each", async () => {
     const rows = [await rowOf()];
     const json = JSON.parse(renderBatchJsonl(rows)) as { error: { issues: { position: { line: number } }[] } };
     expect(json.error.issues.map((issue) => issue.position.line)).toEqual([4, 8, 10]);
     const records = parseRfc4180(renderBatchCsv(rows));
-    expect(records[0]!.at(-1)).toBe("error_issues");
+    expect(records[0]!.slice(-3)).toEqual(["loss_scales", "error_issues", "worst_scope"]);
     const cell = records[1]![BATCH_CSV_HEADER.indexOf("error_issues")]!;
     expect(cell.split("\n").map((l) => l.split(":").slice(1, 3).join(":"))).toEqual(["4:10", "8:27", "10:20"]);
     // the first problem keeps its columns

@@ -13,6 +13,7 @@ import {
   renderBatchJsonl,
   renderBatchMarkdown,
   renderBatchText,
+  worstRiskText,
 } from "../../src/report/batch.js";
 import { createStyle } from "../../src/report/style.js";
 import { parseRfc4180 } from "./rfc4180.js";
@@ -50,6 +51,7 @@ const ROWS: BatchRow[] = [
         label: "overflow",
         value: 3.2e-5,
         measure: "probability",
+        scope: "subject",
       },
     },
   },
@@ -78,6 +80,7 @@ const ROWS: BatchRow[] = [
         label: "flushed energy",
         value: 0.125,
         measure: "share",
+        scope: "subject",
       },
     },
   },
@@ -280,6 +283,29 @@ describe("a worst finding counted in elements", () => {
     expect(formatRiskValue({ value: 0.25, measure: "count" })).toBe("0.25 elements");
     expect(formatRiskValue({ value: 12, measure: "count" })).toBe("12 elements");
     expect(formatRiskValue({ value: 4_500_000.5, measure: "count" })).toBe("4.5M elements");
+  });
+});
+
+describe("a worst finding that counts the whole network (Adam's zero second moments)", () => {
+  test("says so beside the layer it names, which holds only part of the count (deep-relu-he, states in binary16)", () => {
+    const file = "specs/deep-relu-he.yaml";
+    const text = readFileSync(file, "utf8").replace("  optimizer-states: binary32\n  master-weights", "  optimizer-states: binary16\n  master-weights");
+    const parsed = parseSpec(text, file);
+    if (!parsed.ok) throw new Error("the varied example does not load");
+    const worst = summarizeCheck(check(parsed.spec)).worst!;
+    expect(worst.kind).toBe("optimizer-epsilon-flushed");
+    expect(worst.subject).toBe("hidden-stack.0.use-0.dense-0");
+    // the named layer holds 784 × 512 weights and 512 biases (a dense layer's fan-in × width, common practice): the
+    // count is above all its elements, so it cannot be the layer's own
+    expect(worst.value).toBeGreaterThan(784 * 512 + 512);
+    expect(worst.scope).toBe("network");
+    expect(worstRiskText(worst)).toMatch(/^zero second moments [0-9.]+M elements across the network \(most in this layer\)$/);
+    const row: BatchRow = { index: 0, file, variant: null, status: "ok", summary: summarizeCheck(check(parsed.spec)) };
+    expect(JSON.parse(renderBatchJsonl([row]))).toMatchObject({ worst: { scope: "network" } });
+    const records = parseRfc4180(renderBatchCsv([row]));
+    expect(records[1]![BATCH_CSV_HEADER.indexOf("worst_scope")]).toBe("network");
+    // a finding about its subject alone says nothing more
+    expect(worstRiskText({ label: "flushed energy", value: 0.125, measure: "share", scope: "subject" })).toBe("flushed energy 12.5%");
   });
 });
 
