@@ -9,9 +9,10 @@
  * draws put log2 r = log2 rms + s·Z with Z independent of V, so the draw integral is
  *   I(x) = E_Z[g(x − s·Z)] = P(V + s·Z ≥ x) = E_V[h(V)],  h(v) = Q((x − v)/s),  x = log2(t/rms)
  * (Q the normal upper tail). Taylor's theorem about μ = E[V] with the Lagrange remainder gives
- *   I = Q(u) + u·φ(u)·σ²/(2s²) + R,  u = (x − μ)/s,  |R| ≤ (M_d·E[|V−μ|³; |V−μ| ≤ d] + φ(0)·E[|V−μ|³; |V−μ| > d])/(6s³)
- * where h'''(v) = (u_v² − 1)·φ(u_v)/s³ (u_v = (x − v)/s), |(u² − 1)φ(u)| ≤ φ(0) everywhere, and M_d is its largest
- * value over |v − μ| ≤ d. The moments of V are computed once per process on a grid of counts n_k = e^{k/256}; I grows
+ *   I = Q(u) + u·φ(u)·σ²/(2s²) + R,  u = (x − μ)/s,  |R| ≤ Σ_j M_j·E[|V − μ|³; V in shell j]/(6s³)
+ * where h'''(v) = (u_v² − 1)·φ(u_v)/s³ (u_v = (x − v)/s), the shells partition the line around μ, and M_j is the
+ * largest |(u² − 1)φ(u)| between μ and the far edge of shell j (the Lagrange point lies between μ and V), at most
+ * φ(0) anywhere. The moments of V are computed once per process on a grid of counts n_k = e^{k/256}; I grows
  * with n (more elements, more chances), so the grid count below n gives the lower bound and the one above the upper.
  * The bounds are widened for what separates the computed integral from I: the fast erfc's relative error 1.2e-7, the
  * sum's 1e-6 (laws.ts), the moments' quadrature; 2e-5 of the upper bound covers them all (checked against the
@@ -117,39 +118,47 @@ function third(u: number): number {
 const ROOT3 = Math.sqrt(3);
 const THIRD_PEAK = third(ROOT3);
 
-// The Taylor value of I at x for grid count k, minus (side −1) or plus (side +1) its remainder bound: over each shell
-// the largest |(u² − 1)φ(u)| is at an end, or at its peaks 0 and ±√3 when they lie inside (it falls away from them).
-// A shell whose share could move the bound by less than a thousandth of the value takes φ(0), the largest anywhere,
-// without evaluating its ends.
-function taylor(x: number, s: number, k: number, side: number): number {
-  const m = levelMoments(k);
+// The Taylor value of I at x, minus (side −1) or plus (side +1) its remainder bound. For V in a shell, the Lagrange
+// point lies between μ and V: the remainder takes the largest |(u² − 1)φ(u)| from μ out to the shell's far edge, the
+// running largest of each shell's own (at its ends, or at its peaks 0 and ±√3 when they lie inside; it falls away from
+// them). From the first shell (outward) whose share could move the bound by less than a thousandth of the value, the
+// largest anywhere, φ(0), is taken without evaluating more ends.
+function taylor(x: number, s: number, m: LevelMoments, side: number): number {
   const u = (x - m.mean) / s;
   const value = normalSf(u) + (u * normalPdf(u) * m.variance) / (2 * s * s);
   const edges = m.edges;
   const thirds = m.thirds;
   const scale = 6 * s * s * s;
   const negligible = (1e-3 * Math.abs(value) * scale) / PHI0;
+  // the shell whose lower edge is the mean (edges hold an offset of exactly 0)
+  let centre = 0;
+  while ((edges[centre] as number) < 0) centre++;
   let sum = 0;
-  // u falls as v rises: shell j spans u from b (at its upper edge) to a (at its lower edge); fa is third(a) once taken
-  let a = Infinity;
-  let fa = 0;
-  for (let j = 0; j < thirds.length; j++) {
-    const c = thirds[j] as number;
-    const b = (x - m.mean - (edges[j + 1] as number)) / s;
-    if (c <= negligible) {
-      sum += PHI0 * c;
-      a = b;
-      fa = NaN;
-      continue;
+  // outward from the mean, each way: u falls as v rises
+  for (let direction = 1; direction >= -1; direction -= 2) {
+    let near = u;
+    let fNear = third(u);
+    let running = 0;
+    let exhausted = false;
+    for (let j = direction > 0 ? centre : centre - 1; j >= 0 && j < thirds.length; j += direction) {
+      const c = thirds[j] as number;
+      if (exhausted || c <= negligible) {
+        exhausted = true;
+        sum += PHI0 * c;
+        continue;
+      }
+      const far = (x - m.mean - (edges[direction > 0 ? j + 1 : j] as number)) / s;
+      const fFar = third(far);
+      const low = Math.min(near, far);
+      const high = Math.max(near, far);
+      let peak = Math.max(fNear, fFar);
+      if (low <= 0 && 0 <= high) peak = PHI0;
+      else if ((low <= ROOT3 && ROOT3 <= high) || (low <= -ROOT3 && -ROOT3 <= high)) peak = Math.max(peak, THIRD_PEAK);
+      running = Math.max(running, peak);
+      sum += running * c;
+      near = far;
+      fNear = fFar;
     }
-    if (fa !== fa) fa = third(a);
-    const fb = third(b);
-    let peak = Math.max(fa, fb);
-    if (b <= 0 && 0 <= a) peak = PHI0;
-    else if ((b <= ROOT3 && ROOT3 <= a) || (b <= -ROOT3 && -ROOT3 <= a)) peak = Math.max(peak, THIRD_PEAK);
-    sum += peak * c;
-    a = b;
-    fa = fb;
   }
   return value + (side * sum) / scale;
 }
@@ -180,8 +189,9 @@ export function anyAboveEnclosure(profile: MagnitudeProfile, t: number): [number
   const at = Math.log(n) * PER_LN;
   const below = Math.floor(at);
   const above = Math.ceil(at);
-  const low = taylor(x, s, below, -1);
-  const high = taylor(x, s, above, 1);
+  const low = taylor(x, s, levelMoments(below), -1);
+  const high = taylor(x, s, levelMoments(above), 1);
   const widen = WIDEN * Math.max(0, high);
   return [Math.max(0, low - widen), Math.min(1, high + widen)];
 }
+
