@@ -251,6 +251,14 @@ class BoundedCurves implements ScaledTensorCurves {
     return Math.max(this.overflowStart, this.overflowEnd);
   }
 
+  // the moment bounds' lower end (0 for a profile without them: the worse of two values is at least either's)
+  overflowRiskLower(k: number): number {
+    this.overflowUppers(k);
+    const a = this.overflowStartLow;
+    const b = this.overflowEndLow;
+    return Math.max(a === a ? a : 0, b === b ? b : 0);
+  }
+
   flushedEnergyUpper(k: number): number {
     this.flushUppers(k);
     return Math.max(this.flushStart, this.flushEnd);

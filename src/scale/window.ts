@@ -23,6 +23,8 @@ export interface ScaledTensorCurves {
   overflowRiskUpper?(log2Scale: number): number;
   /** optional upper bound on flushedEnergy tighter than the bounds', at more cost: asked for before integrating */
   flushedEnergyUpper?(log2Scale: number): number;
+  /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
+  overflowRiskLower?(log2Scale: number): number;
   /**
    * optional guesses of this tensor's own edges (the exponent where its overflow, and its flushing, reach the
    * limits): the searches start there and gallop, which finds the same edges in fewer steps than bisecting the
@@ -272,6 +274,15 @@ class WindowSearch {
     if (u === undefined) return undefined;
     table.data[4 * i + 2] = u;
     table.flags[i] = flags | HAS_UPPER;
+    const lower = curve === "overflow" ? t.overflowRiskLower?.(k) : undefined;
+    if (lower !== undefined) {
+      // kept with the cheap bounds, where every exponent reads it (see `known`)
+      if ((flags & HAS_BOUNDS) === 0) {
+        table.data[4 * i] = lower;
+        table.data[4 * i + 1] = u;
+        table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
+      } else if (lower > (table.data[4 * i] as number)) table.data[4 * i] = lower;
+    }
     return u;
   }
 
@@ -490,7 +501,9 @@ class WindowSearch {
     this.state[i] = 1;
     const u = this.upper("overflow", k, i, table);
     if (u === undefined) return false;
-    this.setBounds(i, 0, Math.max(this.lows[i] as number, u));
+    const flags = table.flags[i] as number;
+    const lower = (flags & HAS_BOUNDS) !== 0 ? Math.max(0, table.data[4 * i] as number) : 0;
+    this.setBounds(i, lower, Math.max(this.lows[i] as number, lower, u));
     return true;
   }
 
