@@ -190,16 +190,16 @@ class BoundedCurves implements ScaledTensorCurves {
   private overflowUppers(k: number): void {
     if (k === this.overflowK) return;
     const t = this.limits.overflowLevel * 2 ** -k;
-    const a = anyAboveEnclosure(this.start, t);
-    this.overflowStart = a === null ? probabilityAnyAboveUpper(this.start, t) : a[1];
-    this.overflowStartLow = a === null ? NaN : a[0];
+    boundsOf(this.start, t, PAIR);
+    this.overflowStart = PAIR[1] as number;
+    this.overflowStartLow = PAIR[0] as number;
     if (this.same) {
       this.overflowEnd = this.overflowStart;
       this.overflowEndLow = this.overflowStartLow;
     } else {
-      const b = anyAboveEnclosure(this.end, t);
-      this.overflowEnd = b === null ? probabilityAnyAboveUpper(this.end, t) : b[1];
-      this.overflowEndLow = b === null ? NaN : b[0];
+      boundsOf(this.end, t, PAIR);
+      this.overflowEnd = PAIR[1] as number;
+      this.overflowEndLow = PAIR[0] as number;
     }
     this.overflowK = k;
   }
@@ -235,11 +235,8 @@ class BoundedCurves implements ScaledTensorCurves {
     return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
   }
 
-  // the moment bounds of both profiles where the law has them, else the extreme-draw bounds (of the parts)
   overflowRiskBounds(k: number): readonly [number, number] {
-    this.overflowUppers(k);
-    if (this.overflowStartLow !== this.overflowStartLow || this.overflowEndLow !== this.overflowEndLow) return this.parts.overflowRiskBounds(k);
-    return [Math.max(this.overflowStartLow, this.overflowEndLow), Math.max(this.overflowStart, this.overflowEnd)];
+    return this.parts.overflowRiskBounds(k);
   }
 
   flushedEnergyBounds(k: number): readonly [number, number] {
@@ -263,6 +260,22 @@ class BoundedCurves implements ScaledTensorCurves {
     this.flushUppers(k);
     return Math.max(this.flushStart, this.flushEnd);
   }
+}
+
+const PAIR = new Float64Array(2);
+// Bounds on one profile's any-above probability at t into `into` (low NaN when there is none): the segment upper bound
+// (a handful of evaluations far in the tail, where it falls fast), and where it leaves more than SEGMENT_ENOUGH the
+// moment bounds of src/scale/overflow-enclosure.ts (a few normal tails, far tighter, both ways) where the law has them.
+const SEGMENT_ENOUGH = 1e-9;
+function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array): void {
+  const segment = probabilityAnyAboveUpper(profile, t);
+  into[0] = NaN;
+  into[1] = segment;
+  if (!(segment > SEGMENT_ENOUGH)) return;
+  const e = anyAboveEnclosure(profile, t);
+  if (e === null) return;
+  into[0] = e[0];
+  into[1] = Math.min(segment, e[1]);
 }
 
 /**
