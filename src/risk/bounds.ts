@@ -5,7 +5,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
-import { elementLaw, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements, type ElementLaw } from "./laws.js";
+import { elementLaw, INNER_DRAW_OUTSIDE, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements, type ElementLaw } from "./laws.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
 
 /**
@@ -93,4 +93,84 @@ export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): 
 export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return energyBelow(profile, t);
   return segmentBound(profile, false, elementLaw(profile), t, 0, false);
+}
+
+/**
+ * The extreme-draw bounds above ({@link probabilityAnyAboveBounds}, and {@link energyBelowBounds} with their inner
+ * draws) of one Gaussian-law profile at any number of thresholds: the draws' scales rms·2^{±9·spread} and
+ * rms·2^{±4·spread} are taken once per profile instead of once per threshold (through laws.ts's table of node
+ * factors, which every spread of a large check misses), and each bound is the same arithmetic on the same values as
+ * lawOverDrawsBounds', bit for bit (test/scale/recommend-bounds.test.ts). Other profiles (another law, a bound, no
+ * spread, nothing to judge) go to the functions above.
+ */
+export class ProfileDrawBounds {
+  private readonly fast: boolean;
+  private readonly count: number;
+  private readonly lowest: number;
+  private readonly highest: number;
+  private readonly innerLow: number = 0;
+  private readonly innerHigh: number = 0;
+  private readonly law: ElementLaw;
+  constructor(private readonly profile: MagnitudeProfile) {
+    const shape = profile.shape;
+    const s = profile.log2Spread;
+    this.fast =
+      (shape === "gaussian" || shape === "half-gaussian") && !(profile.bound !== undefined && profile.bound > 0) && s > 0 && !isEmpty(profile);
+    this.law = elementLaw(profile);
+    this.count = nonzeroElements(profile);
+    // the draws' scales at the nodes z = −9, 9, −4, 4 as laws.ts's nodeFactors makes them: 2^(spread·m) at a whole
+    // z = m by m products of 2^spread (or of 2^−spread), times the eighth's power 1
+    const rms = profile.rms;
+    const up = 2 ** s;
+    const down = 2 ** -s;
+    let above = 1;
+    let below = 1;
+    for (let m = 1; m <= 9; m++) {
+      above *= up;
+      below *= down;
+      if (m === 4) {
+        this.innerHigh = rms * above;
+        this.innerLow = rms * below;
+      }
+    }
+    this.highest = rms * above;
+    this.lowest = rms * below;
+  }
+
+  /** {@link probabilityAnyAboveBounds}(profile, t) */
+  anyAbove(t: number): [number, number] {
+    if (!this.fast) return probabilityAnyAboveBounds(this.profile, t);
+    // laws.ts drawBounds on anyOf(above(r, t), n), the draws beyond ±9 allowed up to 1
+    const a = anyOf(this.law.above(this.lowest, t), this.count);
+    const b = anyOf(this.law.above(this.highest, t), this.count);
+    if (a === b) return pair(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
+    return pair(Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12) + 2.3e-19));
+  }
+
+  /** {@link energyBelowBounds}(profile, t) */
+  energyBelow(t: number): [number, number] {
+    if (!this.fast) return energyBelowBounds(this.profile, t);
+    // laws.ts drawBounds on energyBelow(r, t) with the inner draws
+    const law = this.law;
+    const a = law.energyBelow(this.lowest, t);
+    const b = law.energyBelow(this.highest, t);
+    if (a === b) return pair(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
+    const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
+    const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12));
+    if (outerLow === outerHigh) return pair(outerLow, outerHigh);
+    const c = law.energyBelow(this.innerLow, t);
+    const d = law.energyBelow(this.innerHigh, t);
+    const inside = 1 - INNER_DRAW_OUTSIDE;
+    const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
+    const high = Math.min(1, (Math.max(c, d) * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9));
+    return pair(Math.max(outerLow, low), Math.min(outerHigh, high));
+  }
+}
+
+// [low, high] as an array of doubles from its first use (see laws.ts `bounds`)
+function pair(low: number, high: number): [number, number] {
+  const p: [number, number] = [0.5, 0.5];
+  p[0] = low;
+  p[1] = high;
+  return p;
 }

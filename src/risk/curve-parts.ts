@@ -4,7 +4,7 @@
  * src/risk/index.ts.
  */
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowBounds, probabilityAnyAboveBounds } from "./bounds.js";
+import { ProfileDrawBounds } from "./bounds.js";
 import { sameDistribution } from "./profile.js";
 import { GRADIENT_ROLES, riskProfile } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
@@ -44,27 +44,40 @@ export function lossScaleCurveParts(tensors: readonly TensorPrediction[], limits
         overflow: Math.floor(Math.log2(limits.overflowLevel) - rmsLog2 - 2 - 3 * spread),
         flush: Math.ceil(Math.log2(limits.flushBound) - lowRmsLog2 + 4 + 3 * spread),
       };
-      return {
-        id: tensor.id,
-        start,
-        end,
-        same,
-        edgeGuessesLog2,
-        // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile
-        // against t·2^−k, exactly (powers of two), without a scaled copy per exponent
-        overflowRiskBounds(k: number): readonly [number, number] {
-          const level = limits.overflowLevel * 2 ** -k;
-          const a = probabilityAnyAboveBounds(start, level);
-          const b = same ? a : probabilityAnyAboveBounds(end, level);
-          return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
-        },
-        flushedEnergyBounds(k: number): readonly [number, number] {
-          const level = limits.flushBound * 2 ** -k;
-          // the worse of two values lies between the worse of their lower and the worse of their upper bounds
-          const a = energyBelowBounds(start, level);
-          const b = same ? a : energyBelowBounds(end, level);
-          return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
-        },
-      };
+      return new CurveParts(tensor.id, start, end, same, edgeGuessesLog2, limits);
     });
+}
+
+// One tensor's parts: each profile's extreme-draw bounds with its draws' scales taken once (ProfileDrawBounds)
+class CurveParts implements LossScaleCurveParts {
+  private readonly startBounds: ProfileDrawBounds;
+  private readonly endBounds: ProfileDrawBounds;
+  constructor(
+    readonly id: string,
+    readonly start: MagnitudeProfile,
+    readonly end: MagnitudeProfile,
+    readonly same: boolean,
+    readonly edgeGuessesLog2: { overflow: number; flush: number },
+    private readonly limits: RangeLimits,
+  ) {
+    this.startBounds = new ProfileDrawBounds(start);
+    this.endBounds = same ? this.startBounds : new ProfileDrawBounds(end);
+  }
+
+  // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile against
+  // t·2^−k, exactly (powers of two), without a scaled copy per exponent
+  overflowRiskBounds(k: number): readonly [number, number] {
+    const level = this.limits.overflowLevel * 2 ** -k;
+    const a = this.startBounds.anyAbove(level);
+    const b = this.same ? a : this.endBounds.anyAbove(level);
+    return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+  }
+
+  flushedEnergyBounds(k: number): readonly [number, number] {
+    const level = this.limits.flushBound * 2 ** -k;
+    // the worse of two values lies between the worse of their lower and the worse of their upper bounds
+    const a = this.startBounds.energyBelow(level);
+    const b = this.same ? a : this.endBounds.energyBelow(level);
+    return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+  }
 }

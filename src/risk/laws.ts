@@ -784,6 +784,8 @@ const INNER_OUTSIDE = (() => {
   for (let i = 0; i < z.length; i++) if (Math.abs(z[i] as number) > INNER_LIMIT) outside += w[i] as number;
   return outside;
 })();
+/** The rule's weight beyond ±4 standard deviations of the draws, for inner bounds computed elsewhere (src/risk/bounds.ts). */
+export const INNER_DRAW_OUTSIDE = INNER_OUTSIDE;
 // the nodes at z = ∓4 (exact on the grid: −9 + i/8)
 const INNER_LOW_NODE = Math.round((DRAW_LIMIT - INNER_LIMIT) / DRAW_STEP);
 const INNER_HIGH_NODE = Math.round((DRAW_LIMIT + INNER_LIMIT) / DRAW_STEP);

@@ -4,7 +4,7 @@
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { energyBelow, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../../src/risk/index.js";
-import { energyBelowUpper, probabilityAnyAboveUpper } from "../../src/risk/bounds.js";
+import { energyBelowBounds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../../src/risk/bounds.js";
 import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
 import { lossScaleWindow } from "../../src/scale/window.js";
 
@@ -67,6 +67,28 @@ describe("segment upper bounds", () => {
     expect(probabilityAnyAboveUpper(p, t)).toBeLessThan(1000 * probabilityAnyAbove(p, t));
     // and the flushed energy far below the rms
     expect(energyBelowUpper(p, 2 ** -30)).toBeLessThan(1e-6);
+  });
+});
+
+describe("ProfileDrawBounds", () => {
+  it("gives the extreme-draw bounds of every profile bit for bit, at every threshold", () => {
+    // the same arithmetic on the same values as laws.ts's drawBounds: the window's search takes the same steps
+    let checked = 0;
+    const extra: MagnitudeProfile[] = [
+      { elements: 65_536, zeroFraction: 0.3, shape: "gaussian", rms: 7e-5, log2Spread: 3.16 },
+      { elements: 256, zeroFraction: 0.05, shape: "half-gaussian", rms: 2e-3, log2Spread: 2.2 },
+      { elements: 4096, zeroFraction: 0, shape: "gaussian", rms: 1e-4, log2Spread: 0.017, bound: 2 ** 40 },
+      { elements: 4096, zeroFraction: 0, shape: "gaussian", rms: 0, log2Spread: 1 },
+    ];
+    for (const p of [...profiles(), ...extra]) {
+      const fast = new ProfileDrawBounds(p);
+      for (const t of THRESHOLDS) {
+        expect(fast.anyAbove(t)).toEqual(probabilityAnyAboveBounds(p, t));
+        expect(fast.energyBelow(t)).toEqual(energyBelowBounds(p, t));
+        checked++;
+      }
+    }
+    expect(checked).toBe((SHAPES.length * 24 + 4) * THRESHOLDS.length);
   });
 });
 
