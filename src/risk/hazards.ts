@@ -117,8 +117,8 @@ function nextDraft(list: DraftList): Draft {
 
 /**
  * Add an evaluation graded against thresholds: above `fails` it fails, above `atRisk` it is at risk (NaN fits);
- * `capAtRisk`: the severity cannot exceed at-risk (e.g. only an implementation that does not widen would overflow),
- * the threshold reported staying the one passed.
+ * `capAtRisk`: the severity cannot exceed at-risk (e.g. only an implementation that does not widen would overflow);
+ * a finding capped so carries the at-risk threshold, the one of the severity it has, even when its value passes `fails`.
  */
 function putGraded(
   list: DraftList,
@@ -139,7 +139,7 @@ function putGraded(
   let threshold = 0;
   if (value > fails) {
     verdict = capAtRisk ? "at-risk" : "fails";
-    threshold = fails;
+    threshold = capAtRisk ? atRisk : fails;
   } else if (value > atRisk) {
     verdict = "at-risk";
     threshold = atRisk;
