@@ -28,6 +28,23 @@ export class CheckInputError extends RangeError {
 }
 
 /**
+ * A `plan` option naming no plan of the spec: the caller's input, not a failure of the check (the command line and
+ * batch rows report it as an input error, exit code 2). A RangeError, as every bad option of `check` is.
+ */
+export class UnknownPlanError extends RangeError {
+  /** the plan asked for */
+  readonly plan: string;
+  /** the spec's plans: its `precision`, then its `plans` */
+  readonly plans: string[];
+  constructor(plan: string, plans: string[]) {
+    super(`no plan named "${plan}" in the spec${didYouMean(plan, plans)}; its plans: ${plans.join(", ")}`);
+    this.name = "UnknownPlanError";
+    this.plan = plan;
+    this.plans = plans;
+  }
+}
+
+/**
  * A check with the decisions that follow from it: the loss-scale answer for the gradient format of the formats judged
  * and the optimizer in the planned formats. `verdict` folds both in.
  */
@@ -87,8 +104,8 @@ export interface CheckAnswerOptions extends CheckOptions {
  * The loss-scale answer is for the gradients of the formats judged; its finding counts in `verdict` when its format is
  * one of them. The optimizer is worked out for the plan, and its findings count only in the plan's formats judged;
  * a finding not counted says so in its sentence.
- * Throws RangeError for bad options (an unknown plan, a non-positive loss scale) and CheckInputError when the
- * network cannot be built from the spec.
+ * Throws RangeError for bad options (UnknownPlanError for an unknown plan; a non-positive loss scale) and
+ * CheckInputError when the network cannot be built from the spec.
  * @example check(spec).formats.map((f) => [f.format, f.verdict]) // => [["binary16", "fails"], ["binary32", "fits"]]
  */
 export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measurements?: Measurements | MeasuredNetwork): CheckAnswer {
@@ -420,10 +437,7 @@ export function measuredWeightProblems(spec: NetworkSpec, measurements: Measurem
 function choosePlan(spec: NetworkSpec, name: string | undefined): PrecisionPlan {
   if (name === undefined || name === spec.precision.name) return spec.precision;
   const found = spec.plans.find((plan) => plan.name === name);
-  if (found === undefined) {
-    const names = [spec.precision.name, ...spec.plans.map((plan) => plan.name)];
-    throw new RangeError(`no plan named "${name}" in the spec${didYouMean(name, names)}; its plans: ${names.join(", ")}`);
-  }
+  if (found === undefined) throw new UnknownPlanError(name, [spec.precision.name, ...spec.plans.map((plan) => plan.name)]);
   return found;
 }
 

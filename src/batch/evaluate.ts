@@ -3,6 +3,7 @@
  * ending in a row, never in an exception. The reading and the judging are passed in, so the worker
  * thread, the library and the tests share this code.
  */
+import { UnknownPlanError } from "../check.js";
 import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import { readSpecFile } from "../spec/parse.js";
 import { oneProblem, type ErrorPosition, type RowError, type SpecSummary } from "./types.js";
@@ -143,6 +144,8 @@ export async function evaluateText<T = SpecSummary>(file: string, original: stri
   } catch (error) {
     const located = positionedIssues(error, locate, file);
     if (located) return { status: "error", error: issuesError(located) };
+    // a plan option the spec lacks (`batch --plan`, `check --vary --plan`) is the caller's input, as a plain check says
+    if (error instanceof UnknownPlanError) return inputError(`${file}: ${error.message}`, { file });
     // the spec's own problems come with positions (above: its graph's issues, a prediction leaving binary64's range);
     // any other error is a failure of headroom itself, as the CLI's commands count it (exit code 3)
     const message = error instanceof Error ? error.message : String(error);

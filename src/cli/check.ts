@@ -1,7 +1,6 @@
-import { check, CheckInputError } from "../check.js";
+import { check, CheckInputError, UnknownPlanError } from "../check.js";
 import { PredictionRangeError } from "../magnitude/range.js";
 import { formatSpecIssue } from "../spec/index.js";
-import { didYouMean } from "../spec/issues.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { renderCheckJson } from "../report/check-json.js";
 import { renderCheckText } from "../report/check-text.js";
@@ -67,7 +66,7 @@ export async function loadAndCheck(
 /** A `--plan` that names the spec's plan or one of its `plans`; else a UserError naming them (exit code 2). */
 function planOption(path: string, spec: NetworkSpec, name: string): void {
   const names = [spec.precision.name, ...spec.plans.map((plan) => plan.name)];
-  if (!names.includes(name)) throw new UserError(`${path}: no plan named "${name}" in the spec${didYouMean(name, names)}; its plans: ${names.join(", ")}`);
+  if (!names.includes(name)) throw new UserError(`${path}: ${new UnknownPlanError(name, names).message}`);
 }
 
 /** The flags of `check` (src/cli/commands/check.ts). */

@@ -7,6 +7,8 @@ import { parseVaryOption, variantsOf } from "../../src/batch/vary.js";
 import { planBatch, runBatch } from "../../src/batch/run.js";
 import type { BatchInput } from "../../src/batch/paths.js";
 import { specJsonSchema } from "../../src/spec/index.js";
+import { check } from "../../src/check.js";
+import { summarizeCheck } from "../../src/report/summary.js";
 
 const WORKER = new URL("./fixtures/fake-judge-worker.mjs", import.meta.url);
 const dir = mkdtempSync(join(tmpdir(), "headroom-run-"));
@@ -57,6 +59,14 @@ describe("evaluateTask", () => {
     // a spec's own problems carry spec paths (next test); an offset out of bounds inside headroom is headroom's failure
     const range = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: () => { throw new RangeError("offset is out of bounds"); } });
     expect(range).toMatchObject({ error: { kind: "internal", message: "a.yaml: offset is out of bounds" } });
+  });
+  test("a plan option the spec lacks is an input error naming the spec's plans, not an internal one", async () => {
+    // the judge as the batch worker runs it: check() itself, asked for a plan this spec does not have
+    const result = await evaluateTask({ file: "a.yaml", variant: null }, { ...hooks, judge: (s) => summarizeCheck(check(s, { plan: "mixed-bfloat16" })) });
+    expect(result).toMatchObject({
+      status: "error",
+      error: { kind: "input", message: 'a.yaml: no plan named "mixed-bfloat16" in the spec; its plans: planned', position: { file: "a.yaml" } },
+    });
   });
   test("a judge error naming spec paths becomes a positioned input error", async () => {
     const graphError = Object.assign(new RangeError("cannot build"), { issues: [{ path: ["layers", 2, "width"], message: "must equal the classes, 4" }] });

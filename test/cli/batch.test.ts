@@ -167,6 +167,21 @@ describe("headroom batch exit codes and options", () => {
     expect(run.stderr).toBe("");
   });
 
+  test("--plan naming a plan a spec lacks is an input error on its row (exit 2), in batch and in check --vary", () => {
+    const run = runCli(["batch", join(small, "a.yaml"), "--plan", "mixed-bfloat16", "--jsonl"]);
+    const rows = run.stdout.trim().split("\n").map((line) => JSON.parse(line));
+    const message = `${join(small, "a.yaml")}: no plan named "mixed-bfloat16" in the spec; its plans: planned`;
+    expect(rows).toMatchObject([{ status: "error", error: { kind: "input", message } }]);
+    expect(run.status).toBe(2);
+    const text = runCli(["batch", join(small, "a.yaml"), "--plan", "mixed-bfloat16"]);
+    expect(text.stdout).toContain(`  ${message}\n`);
+    expect(text.stdout).not.toContain("internal error");
+    expect(text.status).toBe(2);
+    const varied = runCli(["check", join(small, "a.yaml"), "--plan", "mixed-bfloat16", "--vary", "training.batch=4,64"]);
+    expect(varied.stderr).toBe(`${message} [training.batch=4]\n${message} [training.batch=64]\n`);
+    expect(varied.status).toBe(2);
+  });
+
   test("--jsonl, --csv and --md exclude each other; --workers must be a whole number", () => {
     expect(runCli(["batch", small, "--jsonl", "--csv"]).status).toBe(2);
     expect(runCli(["batch", small, "--workers", "0"]).stderr).toContain("--workers: expected a whole number");
