@@ -1,6 +1,6 @@
 import { Command, CommanderError } from "commander";
 import { didYouMean } from "../spec/issues.js";
-import { UserError, EXIT, takeExitCode } from "./errors.js";
+import { OutputError, UserError, EXIT, takeExitCode } from "./errors.js";
 import { commands } from "./commands.js";
 import { commandPath, refuseRepeatedOptions, unknownOptionMessage } from "./commands/define.js";
 
@@ -91,21 +91,50 @@ function invalidChoice(text: string, command: Command): string | undefined {
 
 const VERSION = "0.1.0";
 
+/** The first failure of standard output in this run (a broken pipe excepted), recorded by the listener below. */
+let outputFailure: OutputError | undefined;
+let listening = false;
+
 /** Run the CLI; resolves to the process exit code. Never throws. */
 export async function main(argv: readonly string[]): Promise<number> {
-  // A reader that goes away (`| head`) makes stdout emit EPIPE as an event: without a listener Node throws it with a
-  // stack. Writes through writeOut (and round's buffered output) get the error back and end the command at it
-  // (reportError: quiet for a broken pipe); plain writes of the other commands fail silently to their end.
-  if (process.stdout.listenerCount("error") === 0) process.stdout.on("error", () => {});
+  // A stream error without a listener is thrown with a stack; writes to a full disk or a closed pipe fail this way,
+  // after the command's plain `process.stdout.write` has returned. The listener keeps the first failure, and the run
+  // ends with it once the output is handed over. A reader that goes away (`| head`, EPIPE) is its choice: no error.
+  if (!listening) {
+    listening = true;
+    process.stdout.on("error", (error: unknown) => {
+      if (!isBrokenPipe(error)) outputFailure ??= new OutputError(error);
+    });
+  }
+  outputFailure = undefined;
   const program = buildProgram();
   takeExitCode();
+  let code: number;
   try {
     await program.parseAsync([...argv]);
-    return takeExitCode();
+    code = takeExitCode();
   } catch (error) {
     takeExitCode();
-    return reportError(error);
+    code = reportError(error);
+    // a write that failed through writeOut or round's output has been reported with its reason already
+    if (error instanceof OutputError) return code;
   }
+  await outputSettled();
+  // set by the listener while the command ran (TypeScript cannot see that assignment)
+  const failure = outputFailure as OutputError | undefined;
+  if (failure === undefined) return code;
+  process.stderr.write(`headroom: ${failure.message}\n`);
+  return Math.max(code, EXIT.inputError);
+}
+
+/**
+ * Wait until what the command wrote is handed to the system (a pipe can still hold some) and the stream has reported a
+ * failed write (its error event comes on the next tick). Writes nothing when nothing is pending: an empty write fails
+ * on a full device too.
+ */
+async function outputSettled(): Promise<void> {
+  if (process.stdout.writableLength > 0) await new Promise<void>((resolve) => process.stdout.write("", () => resolve()));
+  await new Promise<void>((resolve) => setImmediate(resolve));
 }
 
 function reportError(error: unknown): number {
@@ -114,6 +143,11 @@ function reportError(error: unknown): number {
     if (error.code === "commander.helpDisplayed" || error.code === "commander.version" || error.exitCode === 0) {
       return EXIT.ok;
     }
+    return EXIT.inputError;
+  }
+  if (error instanceof OutputError) {
+    if (error.code === "EPIPE") return EXIT.ok;
+    process.stderr.write(`headroom: ${error.message}\n`);
     return EXIT.inputError;
   }
   if (error instanceof UserError) {

@@ -11,7 +11,7 @@ import { formatValue } from "../report/number.js";
 import type { Command } from "commander";
 import { STORAGE_FORMATS } from "./commands/round.js";
 import { unknownOptionMessage } from "./commands/define.js";
-import { UserError } from "./errors.js";
+import { OutputError, UserError } from "./errors.js";
 import { parseFormatList } from "./lists.js";
 
 const ACCEPTED_VALUES =
@@ -133,8 +133,8 @@ interface RoundCommandOptions {
 
 /**
  * Writes through a buffer, flushing at 64 KiB and waiting for the stream to drain (a million lines stay flat in
- * memory). When the reader goes away (`| head`), the stream's EPIPE is rethrown from the next write, which stops
- * the command quietly (main treats a broken pipe as a normal end).
+ * memory). When the stream fails, its error is rethrown from the next write as an OutputError, which stops the
+ * command: quietly when the reader went away (`| head`: main treats a broken pipe as a normal end), else with the reason.
  */
 class Output {
   private chunks: string[] = [];
@@ -143,7 +143,7 @@ class Output {
   private wake: (() => void) | undefined;
   constructor() {
     process.stdout.on("error", (error: Error) => {
-      this.broken = error;
+      this.broken = new OutputError(error);
       this.wake?.();
     });
   }

@@ -3,7 +3,7 @@ import { randomBytes } from "node:crypto";
 import { renameSync, rmSync, statSync, writeFileSync } from "node:fs";
 import { dirname, basename, join } from "node:path";
 import { parseVaryOption, variantsOf, VaryError, type Variant } from "../batch/vary.js";
-import { UserError } from "./errors.js";
+import { OutputError, systemProblem, UserError } from "./errors.js";
 
 /** Read all of stdin as text. */
 export async function readStdin(): Promise<string> {
@@ -22,10 +22,10 @@ export function variantsFromOptions(options: readonly string[] | undefined): Var
   }
 }
 
-/** Write text to stdout and wait until it is handed over (large outputs, pipes). */
+/** Write text to stdout and wait until it is handed over (large outputs, pipes); rejects with an OutputError. */
 export function writeOut(text: string): Promise<void> {
   return new Promise((resolve, reject) => {
-    process.stdout.write(text, (error) => (error ? reject(error) : resolve()));
+    process.stdout.write(text, (error) => (error ? reject(new OutputError(error)) : resolve()));
   });
 }
 
@@ -50,10 +50,7 @@ export function writeFileAtomic(path: string, text: string): void {
 function writeProblem(path: string, code: string): string {
   if (isFolder(path)) return "it is a folder; give a file name, such as report.html";
   if (code === "ENOENT" || code === "ENOTDIR") return `the folder ${dirname(path)} does not exist`;
-  if (code === "EACCES" || code === "EPERM") return "permission denied";
-  if (code === "EROFS") return "the file system is read-only";
-  if (code === "ENOSPC") return "no space left on the device";
-  return `the system reports ${code}`;
+  return systemProblem(code);
 }
 
 function isFolder(path: string): boolean {
