@@ -69,8 +69,9 @@ export async function runScan(patterns: string[], options: ScanCommandOptions): 
   for (const issue of expanded.issues) result.files.push({ file: issue.file, kind: null, size: 0, tensors: [], skipped: [], issues: [issue] });
 
   const all = options.all === true;
-  if (options.json) process.stdout.write(renderScanJson(result, { all }));
-  else if (options.csv) process.stdout.write(renderScanCsv(result, { all }));
+  // the machine outputs hold every tensor; --all widens only the table, which lists the tensors with findings by default
+  if (options.json) process.stdout.write(renderScanJson(result));
+  else if (options.csv) process.stdout.write(renderScanCsv(result));
   else process.stdout.write(renderScanTable(result, { all, style: stdoutStyle() }));
   for (const file of result.files) for (const issue of file.issues) process.stderr.write(`headroom: ${issueLine(issue)}\n`);
   raiseExitCode(scanExitCode(result));

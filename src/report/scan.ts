@@ -10,7 +10,7 @@ import { renderTable } from "./table.js";
 
 /** Options of the scan renderers. */
 export interface ScanRenderOptions {
-  /** list every tensor, not only those with findings */
+  /** the table lists every tensor, not only those with findings (JSON and CSV always hold every tensor) */
   all?: boolean;
   style?: Style;
 }
@@ -181,12 +181,14 @@ export const SCAN_CSV_COLUMNS = [
   "highest_scale_log2",
 ] as const;
 
-/** The scan as CSV (RFC 4180). Numbers are written in full (shortest round-trip form). */
-export function renderScanCsv(result: ScanResult, options: ScanRenderOptions = {}): string {
+/**
+ * The scan as CSV (RFC 4180): one row per tensor and target format, every tensor (a script filters by `verdict`).
+ * Numbers are written in full (shortest round-trip form).
+ */
+export function renderScanCsv(result: ScanResult): string {
   const rows: (string | number | null)[][] = [];
   for (const file of result.files) {
     for (const t of file.tensors) {
-      if (!options.all && !hasFindings(t)) continue;
       const base = [file.file, t.name, t.dtype, t.shape.join("x"), t.elements, t.zeros, t.infinities, t.nans, t.minNonzero, t.maxAbs, t.rms, t.maxOverRms];
       if (t.casts.length === 0) rows.push([...base, null, null, null, null, null, null, null, null, null, null, null]);
       for (const c of t.casts) {
@@ -210,8 +212,7 @@ export function renderScanCsv(result: ScanResult, options: ScanRenderOptions = {
   return renderCsv([...SCAN_CSV_COLUMNS], rows);
 }
 
-/** The scan as JSON: the whole result (every tensor unless `all` is false, then those with findings), issues included. */
-export function renderScanJson(result: ScanResult, options: ScanRenderOptions = {}): string {
-  const files = result.files.map((f) => ({ ...f, tensors: options.all ? f.tensors : f.tensors.filter(hasFindings) }));
-  return JSON.stringify({ ...result, files, note: "exact counts for these files; confirm training behaviour with a short run" }, null, 2) + "\n";
+/** The scan as JSON: the whole result, every tensor, issues included. */
+export function renderScanJson(result: ScanResult): string {
+  return JSON.stringify({ ...result, note: "exact counts for these files; confirm training behaviour with a short run" }, null, 2) + "\n";
 }

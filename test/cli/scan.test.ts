@@ -82,6 +82,19 @@ describe("headroom scan", () => {
     expect(result.files[0].skipped).toEqual([{ name: "ids", dtype: "I32", shape: [1], reason: "not floating point" }]);
   });
 
+  it("--json and --csv hold every tensor, safe ones too, without --all (the table lists those with findings)", () => {
+    // 0.5, -0.25, 1 and 2 are normal binary16 and bfloat16 numbers (IEEE 754-2019 §3.3): a safe tensor
+    const json = JSON.parse(runCli(["scan", safe, "--json"]).stdout);
+    expect(json.files[0].tensors.map((t: { name: string; casts: { verdict: string }[] }) => [t.name, t.casts.map((c) => c.verdict)])).toEqual([
+      ["layers.0.weight", ["safe", "safe"]],
+    ]);
+    const csv = runCli(["scan", safe, "--csv"]).stdout.trimEnd().split(/\r?\n/);
+    expect(csv).toHaveLength(3);
+    expect(csv[1]).toMatch(/,layers\.0\.weight,F32,2x2,4,.*,binary16,infinity-or-nan,safe,/);
+    expect(csv[2]).toMatch(/,layers\.0\.weight,F32,2x2,4,.*,bfloat16,infinity-or-nan,safe,/);
+    expect(runCli(["scan", safe]).stdout).not.toMatch(/layers\.0\.weight/);
+  });
+
   it("--csv: one row per tensor and target (RFC 4180)", () => {
     const run = runCli(["scan", risky, "--csv", "--to", "binary16"]);
     const lines = run.stdout.trimEnd().split(/\r?\n/);

@@ -16,7 +16,7 @@ export const register: RegisterCommand = (program) => {
     .option("--to <formats>", "target formats, comma-separated", DEFAULT_SCAN_TARGETS.join(","))
     .option("--json", "write the result as JSON")
     .option("--csv", "write one CSV row per tensor and target format")
-    .option("--all", "list every tensor, not only those with findings")
+    .option("--all", "list every tensor in the table, not only those with findings (--json and --csv hold every one)")
     .addOption(
       new Option("--overflow <mode>", "what a value past the largest finite one becomes (default: each format's own: e4m3 saturates)").choices(
         OVERFLOW_MODES,
