@@ -176,7 +176,7 @@ export interface CastCounts {
   subnormal: number;
   saturated: number;
   overflowed: number;
-  /** NaNs and infinities of the file that stay non-finite after the cast: the file's, not the cast's doing */
+  /** NaNs and infinities of the file, in every target (a saturating one included): the file's, not the cast's doing */
   nonFiniteInFile: number;
 }
 
@@ -430,11 +430,9 @@ export class TensorAccumulator {
       return false;
     }
     if (x === Infinity || x === -Infinity) {
-      // an infinity is not an overflow of the cast: it stays one, unless a saturating cast clips it
-      for (let t = 0; t < targets.length; t++) {
-        const cls = targets[t]!.classify(x);
-        counts[t * CAST_CLASS_COUNT + (cls === CAST_CLASS.overflowed ? CAST_CLASS.nan : cls)]! += 1;
-      }
+      // an infinity is the file's, not the cast's: counted apart in every target, a saturating one too (which would
+      // clamp it to its largest finite value, hiding a value that was already lost)
+      for (let t = 0; t < targets.length; t++) counts[t * CAST_CLASS_COUNT + CAST_CLASS.nan]! += 1;
       this.infinities++;
       return false;
     }

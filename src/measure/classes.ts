@@ -12,11 +12,11 @@ export const CAST_CLASS = {
   subnormal: 2,
   /** a nonzero value that rounds to zero */
   flushed: 3,
-  /** a value beyond the target's range (or an infinity) clamped to ±largest finite by a saturating conversion */
+  /** a finite value beyond the target's range clamped to ±largest finite by a saturating conversion */
   saturated: 4,
   /** a finite value that becomes ±infinity or NaN */
   overflowed: 5,
-  /** non-finite in the file already and after the cast: a NaN, or an infinity the cast keeps infinite (not an overflow of the cast) */
+  /** non-finite in the file already: a NaN or an infinity, whatever the cast makes of it (not an overflow of the cast) */
   nan: 6,
 } as const;
 export type CastClass = (typeof CAST_CLASS)[keyof typeof CAST_CLASS];

@@ -40,11 +40,11 @@ export interface CastResult {
   flushed: number;
   /** nonzero values that round to a subnormal */
   subnormal: number;
-  /** values clamped to ±largest finite (saturating conversion), infinities included */
+  /** finite values clamped to ±largest finite (saturating conversion) */
   saturated: number;
   /** finite values that become ±infinity or NaN (non-saturating conversion) */
   overflowed: number;
-  /** NaNs and infinities already in the file that stay non-finite after the cast (not counted as overflowed) */
+  /** NaNs and infinities already in the file, counted in every target (not as overflowed or clipped) */
   nonFiniteInFile: number;
   verdict: CastVerdict;
   /** the power-of-two scales that make the tensor fit; null when it has no nonzero finite value */

@@ -142,6 +142,20 @@ describe("headroom scan", () => {
 });
 
 describe("non-finite values and files of another kind", () => {
+  it("an infinity in the file is counted apart in every target's row, a saturating e4m3 cast's too, and breaks it", () => {
+    // 500 passes e4m3's overflow threshold 464 (OCP 8-bit spec: largest finite 448) and is clipped by its saturating
+    // conversion; the infinity was in the file: not a clip of the cast, whatever e4m3 would make of it
+    const path = files.write("one-inf.npy", npyBytes(1, "<f4", [4], encode("F32", [Infinity, 1, 500, 1e-3])));
+    const run = runCli(["scan", path, "--to", "e4m3,binary16,e5m2", "--json"]);
+    const casts = JSON.parse(run.stdout).files[0].tensors[0].casts;
+    expect(casts.map((c: { format: string; saturated: number; overflowed: number; nonFiniteInFile: number; verdict: string }) => [c.format, c.saturated, c.overflowed, c.nonFiniteInFile, c.verdict])).toEqual([
+      ["e4m3", 1, 0, 1, "breaks"],
+      ["binary16", 0, 0, 1, "breaks"],
+      ["e5m2", 0, 0, 1, "breaks"],
+    ]);
+    expect(runCli(["scan", path, "--to", "e4m3"]).stdout).toMatch(/e4m3\s+breaks\s+0\s+1\s+0\s+1\s+1\s/);
+  });
+
   it("an infinity or NaN already in the file is counted apart from the cast's overflow, in its own cast column", () => {
     // 7e4 overflows binary16 (largest finite 65504, IEEE 754-2019 Table 3.5); the infinity and the NaN were in the file
     const path = files.write("spoilt.safetensors", safetensorsBytes([{ name: "w", dtype: "F32", shape: [4], data: encode("F32", [7e4, Infinity, NaN, 1]) }]));

@@ -74,8 +74,8 @@ function reference(target: CastTarget, values: Float32Array) {
   const out = { flushed: 0, subnormal: 0, saturated: 0, overflowed: 0, nonFiniteInFile: 0 };
   for (const x of values) {
     const r = roundTo(f, x, { overflow: target.overflow });
-    // non-finite in the file and after the cast: not the cast's overflow
-    if (!Number.isFinite(x) && !Number.isFinite(r)) out.nonFiniteInFile++;
+    // non-finite in the file: counted apart whatever the cast makes of it (README, scan), not as the cast's overflow or clip
+    if (!Number.isFinite(x)) out.nonFiniteInFile++;
     else if (!Number.isFinite(r)) out.overflowed++;
     else if (!Number.isFinite(roundTo(f, x, { overflow: "infinity-or-nan" }))) out.saturated++;
     else if (x !== 0 && r === 0) out.flushed++;

@@ -22,8 +22,9 @@ function expected(format: FormatName, values: readonly number[]) {
   for (const x of values) {
     if (Number.isNaN(x)) continue;
     const r = roundTo(f, x);
-    // an infinity in the file that stays one is not the cast's overflow (a saturating cast clips it, below)
-    if (!Number.isFinite(r)) out.overflowed += Number.isFinite(x) ? 1 : 0;
+    // an infinity in the file is not the cast's overflow or clip: counted apart, whatever the cast makes of it
+    if (!Number.isFinite(x)) continue;
+    if (!Number.isFinite(r)) out.overflowed++;
     else if (!Number.isFinite(roundTo(f, x, { overflow: "infinity-or-nan" }))) out.saturated++;
     else if (x !== 0 && r === 0) out.flushed++;
     else if (r !== 0 && Math.abs(r) < f.minNormal) out.subnormal++;
