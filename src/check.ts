@@ -203,8 +203,8 @@ export function gradientLossScale(spec: NetworkSpec, options: { plan?: string; s
 
 /**
  * The answers with each window's pick weighed against the findings it leaves (src/scale/pick.ts), and whether a pick
- * moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale has its
- * centre judged apart.
+ * moved. A format judged at its window's pick counts its findings from `judged`; one judged at a given scale, or not
+ * judged at all, has its centre judged apart.
  */
 function weighedAnswers(
   spec: NetworkSpec,
@@ -216,11 +216,15 @@ function weighedAnswers(
   let moved = false;
   const out = answers.map((answer) => {
     const pick = answer.window.pickLog2;
+    if (pick === null) return answer;
+    // a gradient format no judged format is (--format binary32 on a binary16 plan: binary32 holds the states and the
+    // sums, judged with the plan's binary16 gradients at their scale) is weighed too, its centre judged apart: the
+    // scale those formats are judged at is then the pick a plain check recommends, not the window's bare centre
     const formatCheck = judged.formats.find((f) => f.format === answer.format);
-    if (pick === null || formatCheck === undefined) return answer;
-    const applied = formatCheck.lossScale ?? judged.lossScale;
+    const applied = formatCheck?.lossScale ?? judged.lossScale;
     const subjects = { tensors: new Set<string>(), sites: new Set<string>() };
-    const atCentre = applied.value === 2 ** pick ? { findings: scaledFindings(judged, answer.format, subjects), ...subjects } : undefined;
+    const atCentre =
+      formatCheck !== undefined && applied.value === 2 ** pick ? { findings: scaledFindings(judged, answer.format, subjects), ...subjects } : undefined;
     const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, atCentre);
     if (found === null) return answer;
     if (found.pickLog2 !== pick) moved = true;

@@ -1,6 +1,6 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
-import { check } from "../../src/check.js";
+import { check, gradientLossScale } from "../../src/check.js";
 import { renderExplainText } from "../../src/report/check-explain.js";
 import { renderCheckText } from "../../src/report/check-text.js";
 import { renderHtmlReport } from "../../src/report/html.js";
@@ -137,5 +137,21 @@ describe("HTML bands of formats judged with --format", () => {
     const model = reportModel(both, { version: "test" });
     const gradient = model.tensors.find((t) => t.pass === "backward")!;
     expect(gradient.format).toBe("e5m2");
+  });
+});
+
+describe("a format judged with the plan's gradients but not holding them (--format binary32 on a binary16 plan)", () => {
+  it("is judged at the pick a plain check recommends, and the line names that pick (wide-classifier)", () => {
+    const wide = example("wide-classifier.yaml");
+    const full = check(wide);
+    const only32 = check(wide, { formats: ["binary32"] });
+    const pick = full.lossScaleAnswer!.window.pickLog2!;
+    // the weighed pick moved off the window's centre for this spec (its weighing says so), so a bare centre differs
+    expect(full.lossScaleAnswer!.weighing?.centreLog2).not.toBe(pick);
+    expect(only32.lossScaleAnswer!.window.pickLog2).toBe(pick);
+    expect(only32.lossScale).toMatchObject({ value: 2 ** pick, origin: "recommended" });
+    // and the scale simulate and the library give on their own (gradientLossScale) is the same
+    expect(gradientLossScale(wide).value).toBe(2 ** pick);
+    expect(renderCheckText(only32, { width: 400 })).toContain(`judged with the recommended 2^${pick} = ${2 ** pick},`);
   });
 });
