@@ -23,11 +23,12 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
-import { scaleWords } from "../risk/words.js";
+import { plainNumber, scaleWords } from "../risk/words.js";
 import type { SpecResult } from "../spec/index.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { parseLossScale } from "./loss-scale.js";
 import { DEFAULT_THRESHOLDS } from "../risk/catalogue.js";
+import { subnormalNoiseLimit } from "../risk/subnormal-noise.js";
 import { writeFileAtomic } from "./shared.js";
 import { buildGraph } from "../graph/index.js";
 import { PredictionRangeError } from "../magnitude/range.js";
@@ -226,17 +227,27 @@ function overflowShare(counts: FormatCounts): number {
 }
 
 /**
- * Whether a simulated tensor has a finding, by the check's own at-risk thresholds (DEFAULT_THRESHOLDS): a flushed or
- * subnormal share that check would call at risk, or any overflow, clipping or non-finite value (each one a real
- * event in the run). Any single flushed element counted before, listing hundreds of weights at "<0.1%".
+ * Whether a simulated tensor has a finding, by the check's own at-risk thresholds (DEFAULT_THRESHOLDS): a flushed share
+ * or a subnormal rounding noise (as a share of the squared norm, against the limit check's subnormal rule sets for the
+ * format) that check would call at risk, or any overflow, clipping or non-finite value (each one a real event in the
+ * run). Any single flushed element counted before, listing hundreds of weights at "<0.1%".
  */
 export function simulatedFinding(counts: MeasuredTensor["median"]["counts"]): boolean {
   const t = DEFAULT_THRESHOLDS;
-  return counts.flushed >= t.flushedAtRisk || counts.subnormal >= t.subnormalAtRisk || overflowShare(counts) > 0;
+  return (
+    counts.flushed >= t.flushedAtRisk ||
+    counts.subnormalNoise > subnormalNoiseLimit(getFormat(counts.format), t.subnormalNoiseAtRisk) ||
+    overflowShare(counts) > 0
+  );
 }
 
 function share(x: number): string {
   return x === 0 ? "0" : formatPercent(x);
+}
+
+// a share of the squared norm, as check words the subnormal noise (1.4e-6, not 0.00014%)
+function noiseShare(x: number): string {
+  return x === 0 ? "0" : plainNumber(x);
 }
 
 /** A measured magnitude, or "none finite" when every nonzero element was infinite or NaN (its 0 is no measurement). */
@@ -299,6 +310,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
     { title: "flushed pred" },
     { title: "flushed" },
     { title: "subnormal" },
+    { title: "subnormal noise" },
     { title: "overflow" },
     ...(result.steps > 0 ? [{ title: `rms after ${result.steps}`, align: "right" as const }] : []),
   ];
@@ -315,6 +327,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
         format: held.format,
         flushed: share(held.flushed),
         subnormal: share(held.subnormal),
+        "subnormal noise": noiseShare(held.subnormalNoise),
         overflow: share(overflowShare(held)),
       };
       accumulateLine.push(columns.map((c) => cells[c.title] ?? ""));
@@ -335,6 +348,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       row && !Number.isNaN(row.predictedFlushed) ? share(row.predictedFlushed) : "",
       share(m.counts.flushed),
       share(m.counts.subnormal),
+      noiseShare(m.counts.subnormalNoise),
       share(overflowShare(m.counts)),
       ...(result.steps > 0 ? [t.after !== undefined ? magnitudeCell(t.after, t.after.rms, "none finite") : ""] : []),
     ];

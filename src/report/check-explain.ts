@@ -153,7 +153,8 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     // a format not holding the tensor has no findings, so "fits" would read as a verdict its numbers may contradict
     const head = `  ${risk.format}${scaled}: ${risk.judged ? verdictText(risk.verdict, style) : "not judged (it does not hold this tensor)"}; `;
     const numbers =
-      `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)}, ` +
+      `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)} ` +
+      `(rounding noise ${formatProbability(w.subnormalNoise)} of the squared norm), ` +
       `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
       `headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}` +
       (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, ${scaleWords(result, risk.format)} 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +

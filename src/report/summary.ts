@@ -27,7 +27,7 @@ export const FINDING_WORDS = {
   "gradient-energy-flushed": { label: "flushed energy", measure: "share" },
   "flushed-values": { label: "flushed", measure: "share" },
   "probability-mass-flushed": { label: "flushed probability", measure: "share" },
-  "subnormal-values": { label: "subnormal", measure: "share" },
+  "subnormal-values": { label: "subnormal noise", measure: "share" },
   "softmax-exp-overflow": { label: "softmax exp overflow", measure: "probability" },
   "softmax-sum-overflow": { label: "softmax sum overflow", measure: "probability" },
   "norm-sum-overflow": { label: "norm sum overflow", measure: "probability" },

@@ -2,6 +2,8 @@
  * The catalogue of finding kinds and the default thresholds. Every renderer (terminal, JSON, Markdown, HTML)
  * reads titles and descriptions from here.
  */
+import { FORMATS } from "../formats/index.js";
+import { normalRoundingNoise } from "./subnormal-noise.js";
 import type { FindingKind, RiskThresholds } from "./types.js";
 
 /** How a finding kind is named and explained to a user. */
@@ -25,7 +27,9 @@ export const DEFAULT_THRESHOLDS: Readonly<RiskThresholds> = Object.freeze({
   energyFails: 1e-2,
   flushedAtRisk: 1e-2,
   flushedFails: 1e-1,
-  subnormalAtRisk: 0.25,
+  // bfloat16's own rounding noise (about 2.75e-6): what an 8-bit significand costs, which trains as binary32 does
+  // (Kalamkar et al. 2019)
+  subnormalNoiseAtRisk: normalRoundingNoise(FORMATS.bfloat16.precision),
   headroomAtRisk: 1,
   accumulationAtRisk: 1e-2,
   accumulationFails: 1e-1,
@@ -88,12 +92,17 @@ export const FINDING_INFO = {
       "weighted sum.",
   },
   "subnormal-values": {
-    title: "Subnormal values",
-    short: "hold many subnormals",
+    title: "Subnormal rounding noise",
+    short: "lose precision to subnormals",
     description:
-      "This share of the tensor's nonzero elements lands in the subnormal range, where values keep fewer " +
-      "significant bits (a binary16 subnormal near 2^k keeps 25 + k bits). At risk above 25%. For softmax probabilities, " +
-      "the share of each row's probability mass those elements carry (the weight their precision has in the row's average).",
+      "Elements in the subnormal range keep fewer significant bits: each is rounded to a multiple of the smallest " +
+      "subnormal, an error of about its square over 12 in squared value. Judged by the noise that adds as a share of " +
+      "the tensor's squared norm, not by the count of subnormal elements: at risk above bfloat16's own rounding noise " +
+      "(2.75e-6; an 8-bit significand trains as binary32 does, Kalamkar et al. 2019), or above the format's own where " +
+      "that is larger (7.0e-4 for e4m3, 2.8e-3 for e5m2). Softmax probabilities are judged the same way: the errors " +
+      "have mean zero, so they move a row's weighted average by that share of its own variance. Usual remedy: a larger " +
+      "loss scale (gradients; the finding names the smallest that would do), a larger scale of the tensor, per-tensor " +
+      "or per-block scale factors (8-bit formats), or a format with a wider normal range.",
   },
   "softmax-exp-overflow": {
     title: "Softmax exp overflow",

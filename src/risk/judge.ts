@@ -453,7 +453,7 @@ function thresholdsOf(t: RiskThresholds): RiskThresholds {
     energyFails: t.energyFails,
     flushedAtRisk: t.flushedAtRisk,
     flushedFails: t.flushedFails,
-    subnormalAtRisk: t.subnormalAtRisk,
+    subnormalNoiseAtRisk: t.subnormalNoiseAtRisk,
     headroomAtRisk: t.headroomAtRisk,
     accumulationAtRisk: t.accumulationAtRisk,
     accumulationFails: t.accumulationFails,

@@ -2,6 +2,7 @@
  * Risk of one predicted tensor in one format: the profile numbers at the start and at the end of the horizon,
  * the worse of the two, and the findings they raise against the thresholds.
  */
+import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
 import {
@@ -16,9 +17,11 @@ import {
   type ProfileStatistics,
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
+import { DEFAULT_THRESHOLDS } from "./catalogue.js";
+import { smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
-import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
+import { binades, percent, plainNumber, scaleWords, sentenceStart, when } from "./words.js";
 import { normalCdf } from "./_math.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
@@ -37,8 +40,17 @@ function isGradientRole(role: TensorRole): boolean {
   return role === "activation-gradient" || role === "weight-gradient";
 }
 
+/** A profile's risk numbers with the rounding noise its subnormal elements add. */
+export interface TensorProfileRisk extends ProfileRisk {
+  /**
+   * the expected rounding noise of the elements that round to a subnormal, as a share of the squared norm
+   * (src/risk/subnormal-noise.ts); 0 when subnormals are flushed
+   */
+  subnormalNoise: number;
+}
+
 /** The worse of the start and end numbers, and when each is worse. */
-export interface WorstRisk extends ProfileRisk {
+export interface WorstRisk extends TensorProfileRisk {
   overflowAt: "start" | "end";
   flushAt: "start" | "end";
 }
@@ -50,8 +62,8 @@ export interface TensorFormatRisk {
   judged: boolean;
   /** log2 of the per-tensor scale factor applied before conversion (8-bit formats with scaling), else 0 */
   scaleLog2: { start: number; end: number };
-  start: ProfileRisk;
-  end: ProfileRisk;
+  start: TensorProfileRisk;
+  end: TensorProfileRisk;
   worst: WorstRisk;
   /** fits when `judged` is false */
   verdict: Verdict;
@@ -186,10 +198,9 @@ export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor,
   let mass: FlushedMass | null = null;
   if (isProbabilityRow(tensor)) {
     const first = rowMass(scaled.start, startScaleLog2, start, limits);
-    const last = scaled.same && startScaleLog2 === endScaleLog2 ? first : rowMass(scaled.end, endScaleLog2, end, limits);
-    mass = { start: first[0], end: last[0], subnormalStart: first[1], subnormalEnd: last[1] };
+    mass = { start: first, end: scaled.same && startScaleLog2 === endScaleLog2 ? first : rowMass(scaled.end, endScaleLog2, end, limits) };
   }
-  const findings = tensorFindings(tensor, limits, worst, start, end, options, mass);
+  const findings = tensorFindings(tensor, limits, worst, start, end, options, mass, scaled);
   return {
     format: limits.format,
     judged: options.judged,
@@ -212,21 +223,14 @@ export function isProbabilityRow(tensor: Pick<TensorPrediction, "role" | "start"
   return tensor.role === "activation" && p.shape === "log-normal" && p.bound !== undefined && p.bound > 0;
 }
 
-/**
- * The share of each row's probability mass that rounds to zero, at the start and the end of the horizon, and the share
- * that rounds to a subnormal.
- */
+/** The share of each row's probability mass that rounds to zero, at the start and the end of the horizon. */
 interface FlushedMass {
   start: number;
   end: number;
-  subnormalStart: number;
-  subnormalEnd: number;
 }
 
 /**
- * Shares of the first moment Σ|x| carried by the elements that round to zero and by those that round to a subnormal
- * (between the flush bound and the smallest normal: their precision is what a subnormal costs), over draws:
- * E[|x|·1{|x| ≤ t}]/E[|x|].
+ * The share of the first moment Σ|x| carried by the elements that round to zero, over draws: E[|x|·1{|x| ≤ t}]/E[|x|].
  * For a probability row (Σ p = 1) it is the probability mass a flush takes from the row, and so the largest relative
  * change of the weighted average Σ p_j·v_j. Log-normal elements, log2|x| ~ N(m, s²) with m set by the rms (ln|x| ~
  * N(μ, σ²), σ = s·ln 2, μ = ln rms − σ²): E[x·1{x ≤ t}]/E[x] = Φ((ln t − μ − σ²)/σ) = Φ(log2(t/rms)/s) (the partial
@@ -235,15 +239,9 @@ interface FlushedMass {
  * Other laws, and where scale factors act, are charged the share of flushed elements (at least the mass share for
  * any law: the flushed elements are the smallest).
  */
-function rowMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): [flushed: number, subnormal: number] {
-  const factor = 2 ** -scaleLog2;
-  const flushed = massBelow(profile, limits.flushBound * factor);
-  const below = massBelow(profile, limits.minNormal * factor);
+function rowMass(profile: MagnitudeProfile, scaleLog2: number, risk: ProfileRisk, limits: RangeLimits): number {
   // block scale factors move each block apart, which only the element share (risk.flushedFraction, the block rule's) tells
-  const flushedShare = risk.flushedFraction === 0 ? 0 : Math.min(risk.flushedFraction, flushed ?? 1);
-  const subnormalShare =
-    risk.subnormalFraction === 0 ? 0 : below === null || flushed === null ? risk.subnormalFraction : Math.min(risk.subnormalFraction, Math.max(0, below - flushed));
-  return [flushedShare, subnormalShare];
+  return risk.flushedFraction === 0 ? 0 : Math.min(risk.flushedFraction, massBelow(profile, limits.flushBound * 2 ** -scaleLog2) ?? 1);
 }
 
 // Φ(log2(t/r̄)/√(s² + S²)), the share of the first moment at or below t (rowMass); null for a law without element
@@ -265,19 +263,22 @@ function evaluate(
   stats: ProfileStatistics,
   limits: RangeLimits,
   options: TensorRiskOptions,
-): ProfileRisk {
+): TensorProfileRisk {
   if (!options.perTensorScaling) {
     evaluatedScaleLog2 = 0;
-    return profileRisk(scaled, limits, stats);
+    return withNoise(profileRisk(scaled, limits, stats), scaled, limits);
   }
   const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
   const factor = 2 ** scaleLog2;
   // scaling is linear, so the statistics scale with it
   const rescaled: ProfileStatistics = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
-  const risk = profileRisk(riskProfile(scaled, factor), limits, rescaled);
+  const stored = riskProfile(scaled, factor);
+  const risk = profileRisk(stored, limits, rescaled);
   evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
-  if (!block) return risk;
+  // the subnormal noise under the per-tensor scale also where blocks take their own (as the subnormal share is): a block's
+  // scale lifts its elements at least as far as the tensor's, so this is the larger noise
+  if (!block) return withNoise(risk, stored, limits);
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts).
   // The block conversion clamps a scaled element to ± the largest normal (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1,
   // from memory), so the top of a block's binade is clipped by at most 2^(emax+1)/max under either overflow mode; an
@@ -288,8 +289,22 @@ function evaluate(
   return {
     flushedFraction: Math.max(Math.min(risk.flushedFraction, block.flushedFraction), fractionBelow(scaled, floorLevel)),
     subnormalFraction: risk.subnormalFraction,
+    subnormalNoise: subnormalNoise(stored, limits),
     flushedEnergy: Math.max(Math.min(risk.flushedEnergy, block.flushedEnergy), energyBelow(scaled, floorLevel)),
     overflowRisk: probabilityAnyAbove(scaled, block.scaleClampLevel),
+    headroom: risk.headroom,
+    footroom: risk.footroom,
+  };
+}
+
+// the profile's risk numbers with the subnormal noise of the profile as stored, the keys in the order of TensorProfileRisk
+function withNoise(risk: ProfileRisk, stored: MagnitudeProfile, limits: RangeLimits): TensorProfileRisk {
+  return {
+    flushedFraction: risk.flushedFraction,
+    subnormalFraction: risk.subnormalFraction,
+    subnormalNoise: risk.subnormalFraction === 0 ? 0 : subnormalNoise(stored, limits),
+    flushedEnergy: risk.flushedEnergy,
+    overflowRisk: risk.overflowRisk,
     headroom: risk.headroom,
     footroom: risk.footroom,
   };
@@ -302,10 +317,11 @@ function minOrNull(a: number | null, b: number | null): number | null {
 }
 
 /** Per quantity, the worse of the start and end numbers. */
-export function worseOf(start: ProfileRisk, end: ProfileRisk): WorstRisk {
+export function worseOf(start: TensorProfileRisk, end: TensorProfileRisk): WorstRisk {
   return {
     flushedFraction: Math.max(start.flushedFraction, end.flushedFraction),
     subnormalFraction: Math.max(start.subnormalFraction, end.subnormalFraction),
+    subnormalNoise: Math.max(start.subnormalNoise, end.subnormalNoise),
     flushedEnergy: Math.max(start.flushedEnergy, end.flushedEnergy),
     overflowRisk: Math.max(start.overflowRisk, end.overflowRisk),
     headroom: minOrNull(start.headroom, end.headroom),
@@ -348,10 +364,11 @@ function tensorFindings(
   tensor: TensorPrediction,
   limits: RangeLimits,
   worst: WorstRisk,
-  start: ProfileRisk,
-  end: ProfileRisk,
+  start: TensorProfileRisk,
+  end: TensorProfileRisk,
   options: TensorRiskOptions,
   mass: FlushedMass | null,
+  scaled: ScaledTensor,
 ): Finding[] {
   // gathered in FOUND, then copied out at their exact length (one allocation site for every tensor's findings,
   // judged or not, so the arrays share one elements kind): the result keeps thousands of these arrays, and one
@@ -447,26 +464,75 @@ function tensorFindings(
       ).concat(" (limit ", percent(threshold), ").").join(""),
     };
   }
-  const subnormalStart = row ? mass.subnormalStart : start.subnormalFraction;
-  const subnormalEnd = row ? mass.subnormalEnd : end.subnormalFraction;
-  const subnormalValue = Math.max(subnormalStart, subnormalEnd);
-  if (subnormalValue > t.subnormalAtRisk) {
-    const at = moreAt(subnormalStart, subnormalEnd, worst.flushAt);
+  // what the subnormal elements cost is the noise their rounding adds (src/risk/subnormal-noise.ts), not their count; a
+  // probability row the same way: the errors have mean zero, so they move the row's weighted average Σ p_j·v_j by
+  // Σ δp_j·v_j, whose variance against the average's own, Σ p_j²·E[v²], is this share of the row's squared norm
+  const limit = subnormalNoiseLimit(limits, t.subnormalNoiseAtRisk);
+  if (worst.subnormalNoise > limit) {
+    const at = moreAt(start.subnormalNoise, end.subnormalNoise, worst.flushAt);
     findings[found++] = {
       format,
       subject,
       source: "tensor",
       kind: "subnormal-values",
       severity: "at-risk",
-      value: subnormalValue,
-      threshold: t.subnormalAtRisk,
+      value: worst.subnormalNoise,
+      threshold: limit,
       at,
-      // when, as every other finding of a tensor says
-      sentence: (row
-        ? ["The elements of ", subject, " that are subnormal in ", format, " ", when(at), " carry ", percent(subnormalValue), " of each row's probability mass"]
-        : [sentenceStart(percent(subnormalValue)), " of the nonzero elements of ", subject, " are subnormal in ", format, " ", when(at)]
-      ).concat(", with fewer significant bits (limit ", percent(t.subnormalAtRisk), ").").join(""),
+      sentence: [
+        "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(worst.subnormalNoise),
+        " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
+        percent(at === "start" ? start.subnormalFraction : end.subnormalFraction), " of its nonzero elements are subnormal)",
+        subnormalRemedy(tensor, limits, limit, worst, options, scaled, row), ".",
+      ].join(""),
     };
   }
   return findings.slice(0, found);
+}
+
+// what the limit of the subnormal noise is, in words: the format's own rounding noise when that is the larger, the
+// default's bfloat16 (nothing for a limit the caller set)
+function limitWords(limits: RangeLimits, limit: number, atRisk: number): string {
+  if (limit > atRisk) return `, ${limits.format}'s own rounding noise`;
+  return atRisk === DEFAULT_THRESHOLDS.subnormalNoiseAtRisk ? ", bfloat16's rounding noise" : "";
+}
+
+/**
+ * What would bring a tensor's subnormal noise within the limit, as the end of its finding's sentence. A gradient
+ * without per-tensor scale factors: the smallest power-of-two loss scale above the present one at which both the start
+ * and the end profile are within it, searched while the tensor keeps the headroom the check asks for (a scale that
+ * does not exist there is said so); the search judges exactly what the check judges at that scale.
+ */
+function subnormalRemedy(
+  tensor: TensorPrediction,
+  limits: RangeLimits,
+  limit: number,
+  worst: WorstRisk,
+  options: TensorRiskOptions,
+  scaled: ScaledTensor,
+  row: boolean,
+): string {
+  if (row) return "; keeping the probabilities in a format with more range (bfloat16) would keep them normal";
+  if (options.perTensorScaling) {
+    return options.blockScaling
+      ? "; its elements span more binades than the format's normal range holds under one scale per block: a wider format would keep them"
+      : `; its elements span more binades than ${limits.format}'s normal range below the per-tensor scale: per-block scale factors or a wider format would keep them`;
+  }
+  if (!isGradientRole(tensor.role)) {
+    return FORMATS[limits.format].bits === 8
+      ? "; per-tensor scale factors (scaling: tensor) or a format with a wider normal range would keep them normal"
+      : "; a larger scale of this tensor (its initialisation, a norm's gain) or a format with a wider normal range (bfloat16) would keep them normal";
+  }
+  const headroom = worst.headroom ?? 0;
+  const most = Math.floor(headroom - options.thresholds.headroomAtRisk);
+  const lift = smallestStep(most, (j) => {
+    const factor = 2 ** j;
+    if (subnormalNoise(riskProfile(scaled.start, factor), limits) > limit) return false;
+    return scaled.same || subnormalNoise(riskProfile(scaled.end, factor), limits) <= limit;
+  });
+  const factor = scaled.statistics.factor;
+  if (lift === null) {
+    return `; no loss scale that leaves it ${binades(options.thresholds.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
+  }
+  return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
 }

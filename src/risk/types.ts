@@ -83,8 +83,11 @@ export interface RiskThresholds {
   flushedAtRisk: number;
   /** ... and above which it fails */
   flushedFails: number;
-  /** share of a tensor's nonzero elements held as subnormals (few significant bits) above which it is at risk */
-  subnormalAtRisk: number;
+  /**
+   * rounding noise of a tensor's subnormal elements, as a share of its squared norm, above which it is at risk (or above
+   * the format's own rounding noise share, when that is larger); by default bfloat16's rounding noise share
+   */
+  subnormalNoiseAtRisk: number;
   /** headroom in binades below which a tensor is at risk even when its overflow risk is small */
   headroomAtRisk: number;
   /** relative rounding error of an accumulation (√n·u) above which it is at risk */

@@ -2,7 +2,7 @@
  * Statistics of one tensor as the simulator sees it: magnitudes of the binary64 values (before storage
  * rounding) and what storing them in a format does, counted with the format model (src/formats countClasses).
  */
-import type { Format, RoundOptions } from "../formats/index.js";
+import { MX_BLOCK, roundTo, type Format, type RoundOptions } from "../formats/index.js";
 import { applyScales, countScaled, type StorageScales } from "./scaling.js";
 import type { FormatCounts, TensorStats } from "./types.js";
 
@@ -95,12 +95,36 @@ export function formatCounts(data: Float64Array, format: Format, options: RoundO
     format: format.name,
     flushed: c.flushed / total,
     subnormal: c.subnormal / total,
+    subnormalNoise: subnormalNoise(data, stored, format, options, scales),
     overflowed: c.overflowed / total,
     saturated: c.saturated / total,
     nonFinite: (c.infinities + c.nans) / total,
   };
   if (typeof scales !== "number") counts.clipped = clipped / total;
   return counts;
+}
+
+/**
+ * Σ over the elements stored as subnormals of (rounded − x)², over Σx² of the finite elements, both in the tensor's own
+ * units (`stored` is `data` times its storage scales; a block's error is divided by its scale again).
+ */
+function subnormalNoise(data: Float64Array, stored: Float64Array, format: Format, options: RoundOptions, scales: StorageScales): number {
+  const minNormal = format.minNormal;
+  let noise = 0;
+  let energy = 0;
+  for (let i = 0; i < data.length; i++) {
+    const x = data[i]!;
+    if (!Number.isFinite(x)) continue;
+    energy += x * x;
+    const v = stored[i]!;
+    if (v === 0 || !(Math.abs(v) < minNormal)) continue;
+    const r = roundTo(format, v, options);
+    if (r === 0 || !(Math.abs(r) < minNormal)) continue;
+    const scale = typeof scales === "number" ? scales : scales.scales[Math.floor(i / MX_BLOCK.size)]!;
+    const error = (r - v) / scale;
+    noise += error * error;
+  }
+  return energy > 0 ? noise / energy : 0;
 }
 
 /**
@@ -144,6 +168,7 @@ function medianCounts(draws: readonly FormatCounts[]): FormatCounts {
     format: first.format,
     flushed: pick((c) => c.flushed),
     subnormal: pick((c) => c.subnormal),
+    subnormalNoise: pick((c) => c.subnormalNoise),
     overflowed: pick((c) => c.overflowed),
     saturated: pick((c) => c.saturated),
     nonFinite: pick((c) => c.nonFinite),

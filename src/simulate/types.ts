@@ -76,6 +76,11 @@ export interface FormatCounts {
   flushed: number;
   /** values whose stored result is subnormal */
   subnormal: number;
+  /**
+   * the rounding noise of the values stored as subnormals, Σ(stored − x)² over them divided by Σx² over the finite
+   * values, in the tensor's own units (storage scales removed): what check's subnormal rule predicts (src/risk/subnormal-noise.ts)
+   */
+  subnormalNoise: number;
   /** finite values that became infinite or NaN */
   overflowed: number;
   /** finite values clamped to the largest finite value (with per-block scales: only in blocks whose scale E8M0 clamped) */

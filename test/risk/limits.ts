@@ -52,3 +52,16 @@ export const E4M3_SATURATING: RangeLimits = {
 // the non-saturating conversion: 464 rounds to 448 (ties to even), anything above is NaN (OCP 8-bit specification,
 // SCIENCE.md check value 13)
 export const E4M3_NAN: RangeLimits = { ...E4M3_SATURATING, overflowLevel: 464, saturates: false };
+
+// e5m2 from the OCP 8-bit specification (OFP8 v1.0, Table 1): max normal 57344, min normal 2^-14, min subnormal 2^-16;
+// the overflow threshold is max + half its ulp 2^13 (round to nearest, IEEE 754-2019 §4.3.1), the flush bound 2^-17
+export const E5M2: RangeLimits = {
+  format: "e5m2",
+  maxFinite: 57344,
+  overflowLevel: 61440,
+  saturates: false,
+  flushBound: 2 ** -17,
+  minNormal: 2 ** -14,
+  smallest: 2 ** -16,
+  unitRoundoff: 2 ** -3,
+};

@@ -87,10 +87,11 @@ describe("tensorFormatRisk", () => {
     const flushed = risk.findings.find((f) => f.kind === "flushed-values");
     expect(flushed?.at).toBe("end");
     expect(flushed?.sentence).toContain("at the end of the horizon");
-    // the subnormal share is worst at the start (σ = 1e-5 lies below binary16's smallest normal 2^-14)
+    // the subnormal noise is worst at the start (σ = 1e-5 lies below binary16's smallest normal 2^-14: about
+    // Δ²/12/σ² = 2^-48/12/1e-10 ≈ 3e-6 of the squared norm, Δ = 2^-24; test/risk/subnormal-noise.test.ts)
     expect(risk.findings.find((f) => f.kind === "subnormal-values")?.at).toBe("start");
     // and its sentence says so, as the others do
-    expect(risk.findings.find((f) => f.kind === "subnormal-values")?.sentence).toMatch(/ are subnormal in binary16 at the start of training, with fewer significant bits /);
+    expect(risk.findings.find((f) => f.kind === "subnormal-values")?.sentence).toMatch(/^Rounding the subnormal elements of mixer\/activation in binary16 at the start of training adds noise of /);
     // log2 spread 12: Φ((ln 2^-25 + s²)/s) with s = 12·ln 2 is above 0.9995 but below 1, so the sentence opens
     // with "More than 99.9%", never "100%" (certainty; common practice)
     const wider = { ...activation, end: profile({ shape: "log-normal", rms: 1, elementLog2Spread: 12 }) };

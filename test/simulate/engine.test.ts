@@ -9,6 +9,7 @@ import { runSimulation, learningRate } from "../../src/simulate/engine.js";
 import { shrinkSpec } from "../../src/simulate/shrink.js";
 import { measureTensor } from "../../src/simulate/stats.js";
 import { SimulationTooLarge } from "../../src/simulate/types.js";
+import { createRandom } from "../../src/numeric/random.js";
 
 function spec(text: string): NetworkSpec {
   const parsed = parseSpec(text, "engine.yaml");
@@ -307,5 +308,35 @@ describe("counts of what storing does", () => {
       ),
       { numRuns: 200 },
     );
+  });
+});
+
+describe("the subnormal rounding noise simulate measures", () => {
+  // Σ over the values stored as subnormals of (stored − x)², over Σx²: check's subnormal rule predicts this share
+  // (src/risk/subnormal-noise.ts). Reference: @petamoriken/float16's f16round, binary16's smallest normal 2^-14
+  // (IEEE 754-2019 Table 3.5)
+  function reference(data: Float64Array, scale: number): number {
+    let noise = 0;
+    let energy = 0;
+    for (const x of data) {
+      energy += x * x;
+      const r = f16round(x * scale);
+      if (r !== 0 && Math.abs(r) < 2 ** -14) noise += ((r - x * scale) / scale) ** 2;
+    }
+    return noise / energy;
+  }
+  it.each([
+    [1.2e-5, 1],
+    [3e-7, 1],
+    [1.2e-5, 2 ** 3],
+  ])("matches rounding element by element (rms %s, storage scale %s)", (rms, scale) => {
+    const data = createRandom(5).fillNormal(new Float64Array(1 << 14), 0, rms);
+    const measured = measureTensor(data, FORMATS.binary16, {}, scale).counts.subnormalNoise;
+    expect(measured).toBeGreaterThan(0);
+    expect(Math.abs(measured / reference(data, scale) - 1)).toBeLessThan(1e-9);
+  });
+  it("is 0 when the conversion flushes subnormals", () => {
+    const data = createRandom(5).fillNormal(new Float64Array(1024), 0, 1.2e-5);
+    expect(measureTensor(data, FORMATS.binary16, { flushSubnormals: true }).counts.subnormalNoise).toBe(0);
   });
 });

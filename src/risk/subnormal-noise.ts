@@ -1,0 +1,154 @@
+/**
+ * What a format's subnormal band costs a tensor in precision: the rounding noise its subnormal elements add, as a
+ * share of the tensor's squared norm, and the limit that share is judged against (the ordinary rounding noise of a
+ * format's normal range). A subnormal keeps fewer significant bits, but a band of many subnormals can still cost
+ * less than ordinary rounding in a narrower significand: the count of subnormal elements says nothing about that.
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { hashWords, normalCdf, LN2 } from "./_math.js";
+import { elementLaw, isConstantLike, isEmpty, ruleOverDraws } from "./laws.js";
+import { energyBelow } from "./profile.js";
+import type { RangeLimits } from "./types.js";
+
+/**
+ * The rounding noise share Σ(round(x) − x)²/Σx² of values spread over the normal binades of a format with p
+ * significand bits: 2^(−2(p−1))·(1 − 2^−2)/(24·ln 2). Within binade e the spacing is 2^(e−p+1) and the error of
+ * round-to-nearest is taken uniform on ± half of it, variance spacing²/12 (the usual model of rounding errors as
+ * uniform: common practice); relative to x² with
+ * x = 2^e·m and m log-uniform on [1, 2) (Benford's law for values spread over binades), E[1/m²] = 3/(8·ln 2).
+ * About 2.75e-6 for bfloat16 (p = 8), 4.3e-8 for binary16 (p = 11), 7.0e-4 for e4m3 (p = 4), 2.8e-3 for e5m2 (p = 3).
+ */
+export function normalRoundingNoise(precision: number): number {
+  return (2 ** (-2 * (precision - 1)) * (1 - 2 ** -2)) / (24 * LN2);
+}
+
+/** The significand bits p of the format a range belongs to, from its unit roundoff 2^−p. */
+export function precisionOf(limits: Pick<RangeLimits, "unitRoundoff">): number {
+  return Math.round(-Math.log2(limits.unitRoundoff));
+}
+
+/**
+ * The subnormal noise share above which a tensor stored in this format is at risk: the larger of `atRisk` (by default
+ * bfloat16's normal rounding noise: its 8-bit significand trains as binary32 does, Kalamkar et al. 2019, "A Study of
+ * BFLOAT16 for Deep Learning Training", so that much noise is what a subnormal may cost before it matters) and the
+ * format's own normal rounding noise (a coarser format already pays more on every element).
+ */
+export function subnormalNoiseLimit(limits: Pick<RangeLimits, "unitRoundoff">, atRisk: number): number {
+  return Math.max(atRisk, normalRoundingNoise(precisionOf(limits)));
+}
+
+/**
+ * The expected rounding noise of a tensor's subnormal elements as a share of its squared norm, over draws of its scale:
+ * per draw r (the nonzero elements' rms), E[#subnormal]·Δ²/12 / E[Σx²] = P(flush bound < |x| < smallest normal − Δ/2 | r)·
+ * Δ²/(12·r²), Δ the smallest subnormal, which spaces the subnormals evenly (IEEE 754-2019 §3.3), so that each one's
+ * error is uniform on ±Δ/2 (the model of {@link normalRoundingNoise}); averaged over draws as the other shares are.
+ * 0 when the conversion flushes subnormals (there is no band) or the tensor is all zeros, and 0 where the noise is
+ * surely under {@link NOISE_FLOOR} (see {@link noiseBound}), which settles most tensors without the draw integral.
+ */
+export function subnormalNoise(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
+  if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return 0;
+  if (noiseBound(profile, limits) < NOISE_FLOOR) return 0;
+  return memoised(profile, limits);
+}
+
+/**
+ * Subnormal noise below this share of the squared norm is reported as 0: far under any limit (bfloat16's rounding
+ * noise 2.75e-6, binary16's own 4.3e-8), and the 1e-12 absolute to which the other shares are integrated (README).
+ */
+export const NOISE_FLOOR = 1e-12;
+
+/**
+ * An upper bound on {@link subnormalNoise}, cheap to take. A Gaussian magnitude's density is at most √(2/π)/r (a
+ * uniform one's 1/(√3·r)), so P(band | r) ≤ that times the smallest normal h, and the share per draw at most
+ * c·h·Δ²/(12·r³) (c the density's factor); over draws E[r^−3] = rms^−3·e^((3·S·ln 2)²/2) (the log-normal's
+ * moment). Any law: an element of the band is above Δ/2, so its Δ²/12 is under a third of its square, and the noise
+ * under a third of the energy below h.
+ */
+export function noiseBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
+  const density = profile.shape === "uniform" ? 1 / Math.sqrt(3) : profile.shape === "log-normal" || profile.shape === "constant" ? NaN : Math.sqrt(2 / Math.PI);
+  // a bound under the smallest normal puts the mass above it at the bound, inside the band: no density there
+  const capped = profile.bound !== undefined && profile.bound > 0 && profile.bound < limits.minNormal;
+  if (density === density && !capped) {
+    const spread = 3 * profile.log2Spread * LN2;
+    const bound = ((density * limits.minNormal * limits.smallest * limits.smallest) / (12 * profile.rms ** 3)) * Math.exp((spread * spread) / 2);
+    if (bound < NOISE_FLOOR) return bound;
+  }
+  return energyBelow(profile, limits.minNormal) / 3;
+}
+
+// The same profile meets the same band again and again (each loss scale a search tries, each check of a batch that
+// shares layers): a direct-mapped table on the bits of everything the integral reads returns its earlier result, a
+// collision replacing the older entry, as the draw table of src/risk/profile.ts does.
+const SLOTS = 1 << 15;
+const KEY = 8;
+const KEYS = new Float64Array(SLOTS * KEY).fill(NaN);
+const VALUES = new Float64Array(SLOTS);
+const PROBE = new Float64Array(KEY);
+const PROBE_WORDS = new Int32Array(PROBE.buffer);
+const SHAPES = ["gaussian", "half-gaussian", "uniform", "constant", "bounded", "log-normal"] as const;
+
+function memoised(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
+  PROBE[0] = SHAPES.indexOf(profile.shape);
+  PROBE[1] = profile.rms;
+  PROBE[2] = profile.log2Spread;
+  PROBE[3] = profile.bound ?? -1;
+  PROBE[4] = profile.elementLog2Spread ?? -1;
+  PROBE[5] = limits.flushBound;
+  PROBE[6] = limits.minNormal;
+  PROBE[7] = limits.smallest;
+  const slot = hashWords(PROBE_WORDS) & (SLOTS - 1);
+  const at = slot * KEY;
+  let same = true;
+  for (let i = 0; i < KEY; i++) {
+    if (KEYS[at + i] !== PROBE[i]) {
+      same = false;
+      break;
+    }
+  }
+  if (same) return VALUES[slot] as number;
+  const value = integral(profile, limits);
+  KEYS.set(PROBE, at);
+  VALUES[slot] = value;
+  return value;
+}
+
+/** {@link subnormalNoise} by the draw integral itself, with no bound to skip it (what the tests hold the bound to). */
+export function integral(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
+  const delta = limits.smallest;
+  const low = limits.flushBound;
+  // values within Δ/2 under the smallest normal round up to it: a small part of binary16's band (1/2048), 1/8 of e5m2's
+  const high = limits.minNormal - delta / 2;
+  const noise = (delta * delta) / 12;
+  if (isConstantLike(profile)) return constantNoise(profile.rms, profile.log2Spread, low, high, noise);
+  const law = elementLaw(profile);
+  return ruleOverDraws(profile.rms, profile.log2Spread, (r) => (Math.max(0, law.below(r, high) - law.below(r, low)) * noise) / (r * r));
+}
+
+// Every element equals the drawn scale r = rms·2^(S·z), z ~ N(0, 1): the share is noise/r² for the draws whose r lies in
+// the band. E[e^(−c·z); a < z < b] = e^(c²/2)·(Φ(b + c) − Φ(a + c)) with c = 2·S·ln 2 (the Gaussian's shifted moment:
+// complete the square), which the quadrature would resolve poorly at the band's two steps.
+function constantNoise(rms: number, spread: number, low: number, high: number, noise: number): number {
+  if (!(spread > 0)) return rms > low && rms < high ? noise / (rms * rms) : 0;
+  const a = Math.log2(low / rms) / spread;
+  const b = Math.log2(high / rms) / spread;
+  const c = 2 * spread * LN2;
+  const mass = normalCdf(b + c) - normalCdf(a + c);
+  return Math.min(1, Math.max(0, (noise / (rms * rms)) * Math.exp((c * c) / 2) * mass));
+}
+
+/**
+ * The smallest j in 1..most for which `fits(j)` holds, or null. `fits` must be false at 0 and, past the first j where
+ * it holds, hold for every larger j: the noise of a subnormal band first grows with the scale (elements leave the
+ * flushed range) and then falls (they leave the band and the norm grows), so "at most the limit" holds on a tail.
+ */
+export function smallestStep(most: number, fits: (j: number) => boolean): number | null {
+  if (!(most >= 1) || !fits(most)) return null;
+  let lo = 0;
+  let hi = most;
+  while (hi - lo > 1) {
+    const mid = (lo + hi) >> 1;
+    if (fits(mid)) hi = mid;
+    else lo = mid;
+  }
+  return hi;
+}
