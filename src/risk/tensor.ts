@@ -277,7 +277,8 @@ function evaluate(
   evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
   // the subnormal noise under the per-tensor scale also where blocks take their own (as the subnormal share is): a block's
-  // scale lifts its elements at least as far as the tensor's, so this is the larger noise
+  // scale lifts its elements at least as far as the tensor's, so this bounds the block conversion's noise, but for
+  // elements the tensor's scale would flush (which the flushed shares judge)
   if (!block) return withNoise(risk, stored, limits);
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts).
   // The block conversion clamps a scaled element to ± the largest normal (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1,
