@@ -23,14 +23,6 @@ export function energyBelowBounds(profile: MagnitudeProfile, t: number): [number
   return lawOverDrawsBounds(profile, "energy-below", t, true);
 }
 
-/** Whether {@link energyBelow}(profile, t) exceeds `level`, integrating only when the bounds do not tell. */
-export function energyBelowExceeds(profile: MagnitudeProfile, t: number, level: number): boolean {
-  const [low, high] = energyBelowBounds(profile, t);
-  if (high <= level) return false;
-  if (low > level) return true;
-  return energyBelow(profile, t) > level;
-}
-
 /**
  * Bounds [low, high] on {@link probabilityAnyAbove}(profile, t) from the integrand at the two extreme draws (it is
  * monotone in the scale).

@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowBounds, energyBelowExceeds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper } from "../risk/bounds.js";
+import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { lossScaleCurveParts, type LossScaleCurveParts } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
@@ -328,17 +328,19 @@ export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits,
       for (let i = 0; i < n; i++) {
         // the flushed share falls as the scale grows: a tensor within the tolerance at a smaller scale is within it here
         if (known.tolerated[i]! <= scale) continue;
-        const p = point.profile(i);
+        const draws = point.drawBounds(i);
         if (known.anchored[i] === 0) {
           // once per tensor and point: its cheap bound at the lowest scale the simulation takes, which then serves every
           // scale (widened for the rounding of evaluations at two thresholds)
           known.anchored[i] = 1;
-          if (energyBelowBounds(p, limits.flushBound / lowestScale)[1] <= tolerance * (1 - 1e-9)) {
+          if (draws.energyBelow(limits.flushBound / lowestScale)[1] <= tolerance * (1 - 1e-9)) {
             known.tolerated[i] = lowestScale;
             continue;
           }
         }
-        if (energyBelowExceeds(p, bound, tolerance)) return true;
+        // whether the share exceeds the tolerance, integrating only when the bounds do not tell
+        const [low, high] = draws.energyBelow(bound);
+        if (!(high <= tolerance) && (low > tolerance || energyBelow(point.profile(i), bound) > tolerance)) return true;
         known.tolerated[i] = Math.min(known.tolerated[i]!, scale);
       }
       return false;
@@ -369,6 +371,17 @@ class HorizonPoint {
       const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
       this.gaussian[i] = gaussianLaw && start.elements * (1 - start.zeroFraction) >= 16 ? 1 : 0;
     }
+  }
+
+  // each profile's extreme-draw bounds, made on first use
+  private readonly draws: (ProfileDrawBounds | undefined)[] = [];
+  drawBounds(i: number): ProfileDrawBounds {
+    let d = this.draws[i];
+    if (d === undefined) {
+      d = new ProfileDrawBounds(this.profile(i));
+      this.draws[i] = d;
+    }
+    return d;
   }
 
   profile(i: number): MagnitudeProfile {
