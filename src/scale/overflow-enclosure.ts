@@ -118,49 +118,70 @@ function third(u: number): number {
 const ROOT3 = Math.sqrt(3);
 const THIRD_PEAK = third(ROOT3);
 
-// The Taylor value of I at x, minus (side −1) or plus (side +1) its remainder bound. For V in a shell, the Lagrange
-// point lies between μ and V: the remainder takes the largest |(u² − 1)φ(u)| from μ out to the shell's far edge, the
-// running largest of each shell's own (at its ends, or at its peaks 0 and ±√3 when they lie inside; it falls away from
-// them). From the first shell (outward) whose share could move the bound by less than a thousandth of the value, the
-// largest anywhere, φ(0), is taken without evaluating more ends.
-function taylor(x: number, s: number, m: LevelMoments, side: number): number {
-  const u = (x - m.mean) / s;
-  const value = normalSf(u) + (u * normalPdf(u) * m.variance) / (2 * s * s);
-  const edges = m.edges;
-  const thirds = m.thirds;
-  const scale = 6 * s * s * s;
-  const negligible = (1e-3 * Math.abs(value) * scale) / PHI0;
-  // the shell whose lower edge is the mean (edges hold an offset of exactly 0)
+// The largest |(u² − 1)φ(u)| over [a, b] given its values at the ends: there, or at its peaks 0 and ±√3 when they lie
+// inside (it falls away from them)
+function peakBetween(a: number, fa: number, b: number, fb: number): number {
+  if (a <= 0 && 0 <= b) return PHI0;
+  let peak = Math.max(fa, fb);
+  if ((a <= ROOT3 && ROOT3 <= b) || (a <= -ROOT3 && -ROOT3 <= b)) peak = Math.max(peak, THIRD_PEAK);
+  return peak;
+}
+
+// The remainder bound (times 6s³) of the Taylor values of I at x for two grid counts' moments at once. For V in a
+// shell the Lagrange point lies between μ and V: the bound takes the largest |(u² − 1)φ(u)| from the means out to the
+// shell's far edges, of both laws (the interval only grows outward, one new end per shell), times the larger of the
+// two laws' shares of E|V − μ|³ there: it bounds both remainders. From the first shell (outward) whose share could
+// move the bound by less than a thousandth of `value`, the largest anywhere, φ(0), is taken without evaluating more.
+function remainder(x: number, s: number, a: LevelMoments, b: LevelMoments, value: number): number {
+  const ua = (x - a.mean) / s;
+  const ub = (x - b.mean) / s;
+  const low = Math.min(ua, ub);
+  const high = Math.max(ua, ub);
+  const fLow = third(low);
+  const fHigh = third(high);
+  const inner = peakBetween(low, fLow, high, fHigh);
+  const negligible = (1e-3 * Math.abs(value) * 6 * s * s * s) / PHI0;
+  const edgesA = a.edges;
+  const edgesB = b.edges;
+  const thirdsA = a.thirds;
+  const thirdsB = b.thirds;
+  // the shell whose lower edge is the mean (the edges hold an offset of exactly 0)
   let centre = 0;
-  while ((edges[centre] as number) < 0) centre++;
+  while ((edgesA[centre] as number) < 0) centre++;
   let sum = 0;
-  // outward from the mean, each way: u falls as v rises
+  // outward from the means, each way: u falls as v rises, so the interval's lower end moves out above the means
   for (let direction = 1; direction >= -1; direction -= 2) {
-    let near = u;
-    let fNear = third(u);
-    let running = 0;
+    let end = direction > 0 ? low : high;
+    let fEnd = direction > 0 ? fLow : fHigh;
+    let running = inner;
     let exhausted = false;
-    for (let j = direction > 0 ? centre : centre - 1; j >= 0 && j < thirds.length; j += direction) {
-      const c = thirds[j] as number;
+    for (let j = direction > 0 ? centre : centre - 1; j >= 0 && j < thirdsA.length; j += direction) {
+      const c = Math.max(thirdsA[j] as number, thirdsB[j] as number);
       if (exhausted || c <= negligible) {
         exhausted = true;
         sum += PHI0 * c;
         continue;
       }
-      const far = (x - m.mean - (edges[direction > 0 ? j + 1 : j] as number)) / s;
-      const fFar = third(far);
-      const low = Math.min(near, far);
-      const high = Math.max(near, far);
-      let peak = Math.max(fNear, fFar);
-      if (low <= 0 && 0 <= high) peak = PHI0;
-      else if ((low <= ROOT3 && ROOT3 <= high) || (low <= -ROOT3 && -ROOT3 <= high)) peak = Math.max(peak, THIRD_PEAK);
-      running = Math.max(running, peak);
+      const edge = direction > 0 ? j + 1 : j;
+      const farA = (x - a.mean - (edgesA[edge] as number)) / s;
+      const farB = (x - b.mean - (edgesB[edge] as number)) / s;
+      const far = direction > 0 ? Math.min(farA, farB) : Math.max(farA, farB);
+      if (direction > 0 ? far < end : far > end) {
+        const fFar = third(far);
+        running = Math.max(running, direction > 0 ? peakBetween(far, fFar, end, fEnd) : peakBetween(end, fEnd, far, fFar));
+        end = far;
+        fEnd = fFar;
+      }
       sum += running * c;
-      near = far;
-      fNear = fFar;
     }
   }
-  return value + (side * sum) / scale;
+  return sum;
+}
+
+// The Taylor value of I at x for one grid count's moments (without the remainder)
+function taylorValue(x: number, s: number, m: LevelMoments): number {
+  const u = (x - m.mean) / s;
+  return normalSf(u) + (u * normalPdf(u) * m.variance) / (2 * s * s);
 }
 
 /** Whether {@link anyAboveEnclosure} bounds this profile's any-above probability at t (a Gaussian law, enough elements). */
@@ -189,8 +210,13 @@ export function anyAboveEnclosure(profile: MagnitudeProfile, t: number): [number
   const at = Math.log(n) * PER_LN;
   const below = Math.floor(at);
   const above = Math.ceil(at);
-  const low = taylor(x, s, levelMoments(below), -1);
-  const high = taylor(x, s, levelMoments(above), 1);
+  const a = levelMoments(below);
+  const b = levelMoments(above);
+  const valueA = taylorValue(x, s, a);
+  const valueB = taylorValue(x, s, b);
+  const bound = remainder(x, s, a, b, valueB) / (6 * s * s * s);
+  const low = valueA - bound;
+  const high = valueB + bound;
   const widen = WIDEN * Math.max(0, high);
   return [Math.max(0, low - widen), Math.min(1, high + widen)];
 }
