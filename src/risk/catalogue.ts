@@ -136,7 +136,8 @@ export const FINDING_INFO = {
       "A dot product or reduction of n terms accumulated in a format with unit roundoff u has a relative " +
       "rounding error of about √n·u for terms of random sign (n·u in the worst case). So do gradients summed across " +
       "workers and accumulation steps (n = workers × steps), held in the gradient format. At risk above 1e-2, " +
-      "fails above 1e-1. Remedy: accumulate in binary32; for a gradient sum, or fewer accumulation steps.",
+      "fails above 1e-1. Remedy: accumulate in binary32, or, for a gradient sum, sum fewer contributions (fewer " +
+      "accumulation steps).",
   },
   "accumulation-overflow": {
     title: "Accumulation overflow",
