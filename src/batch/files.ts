@@ -42,7 +42,7 @@ export interface BatchCheckOptions extends Pick<RunBatchOptions, "workers" | "wo
 }
 
 /**
- * Check every spec that `paths` name (files, folders searched for *.yaml/*.yml, globs with * ? **)
+ * Check every spec that `paths` name (files, folders searched for *.yaml/*.yml/*.json, globs with * ? **)
  * on a pool of worker threads. Resolves to one row per spec (or variant) in input order; bad files
  * and specs are rows with positioned errors. Throws a VaryError for a malformed `vary` option.
  * @example (await batchCheck(["specs"])).filter((row) => row.status === "ok" && row.summary.verdict !== "fits")

@@ -1,6 +1,6 @@
 /**
  * Turning batch arguments into a list of spec files: files as given, folders searched recursively for
- * *.yaml / *.yml, globs, and `-` for a list of paths read from stdin. The file system is passed in,
+ * *.yaml / *.yml / *.json, globs, and `-` for a list of paths read from stdin. The file system is passed in,
  * so this stays pure and testable; the CLI passes node:fs.
  */
 import { resolve } from "node:path";
@@ -25,7 +25,10 @@ export interface ExpandOptions {
   stdinPaths?: readonly string[];
 }
 
-const SPEC_FILE = /\.ya?ml$/i;
+// the extensions a spec file may have, as every command reads them (src/spec/parse.ts: JSON is YAML)
+const SPEC_FILE = /\.(?:ya?ml|json)$/i;
+// a JSON Schema, such as the one `headroom schema` writes beside the specs (specs/network-spec.schema.json): not a spec
+const SCHEMA_FILE = /\.schema\.json$/i;
 
 /** Split text read from stdin into paths: one per line; blank lines and lines starting with `#` are skipped. */
 export function pathsFromText(text: string): string[] {
@@ -44,8 +47,8 @@ function joinPath(folder: string, name: string): string {
 const byName = (a: { name: string }, b: { name: string }): number => (a.name < b.name ? -1 : a.name > b.name ? 1 : 0);
 
 /**
- * Every *.yaml / *.yml file below `folder`, sorted, depth first. Folders whose names start with "."
- * and node_modules are skipped; symbolic links to folders are not followed (they could loop).
+ * Every *.yaml / *.yml / *.json file below `folder` but JSON Schemas (*.schema.json), sorted, depth first. Folders
+ * whose names start with "." and node_modules are skipped; symbolic links to folders are not followed (they could loop).
  */
 export function specFilesIn(host: PathHost, folder: string): string[] {
   const found: string[] = [];
@@ -54,7 +57,7 @@ export function specFilesIn(host: PathHost, folder: string): string[] {
       const path = joinPath(dir, entry.name);
       if (entry.kind === "folder") {
         if (!entry.name.startsWith(".") && entry.name !== "node_modules") walk(path);
-      } else if (SPEC_FILE.test(entry.name) && (entry.kind === "file" || (entry.kind === "link" && host.kind(path) === "file"))) {
+      } else if (SPEC_FILE.test(entry.name) && !SCHEMA_FILE.test(entry.name) && (entry.kind === "file" || (entry.kind === "link" && host.kind(path) === "file"))) {
         found.push(path);
       }
     }
@@ -107,7 +110,7 @@ export function expandInputs(host: PathHost, args: readonly string[], options: E
     if (kind === "folder") {
       const files = specFilesIn(host, argument);
       if (files.length === 0) {
-        out.push({ kind: "error", argument, message: `${argument}: the folder holds no .yaml or .yml files` });
+        out.push({ kind: "error", argument, message: `${argument}: the folder holds no .yaml, .yml or .json files` });
       }
       for (const file of files) addFile(file, argument);
       return;

@@ -45,6 +45,8 @@ function memoryHost(paths: string[], links: Record<string, string> = {}): PathHo
 const HOST = memoryHost([
   "specs/b.yaml",
   "specs/a.yml",
+  "specs/g.json",
+  "specs/network-spec.schema.json",
   "specs/notes.txt",
   "specs/deep/c.yaml",
   "specs/deep/d.YAML",
@@ -56,8 +58,10 @@ const HOST = memoryHost([
 ]);
 
 describe("specFilesIn", () => {
-  test("finds .yaml and .yml recursively in byte order, skipping hidden folders and node_modules", () => {
-    expect(specFilesIn(HOST, "specs")).toEqual(["specs/a.yml", "specs/b.yaml", "specs/deep/c.yaml", "specs/deep/d.YAML"]);
+  test("finds .yaml, .yml and .json recursively in byte order, skipping hidden folders, node_modules and JSON Schemas", () => {
+    // check reads .json specs (JSON is YAML 1.2's subset, YAML 1.2.2 §1.3), so a folder of them is a folder of specs
+    expect(specFilesIn(HOST, "specs")).toEqual(["specs/a.yml", "specs/b.yaml", "specs/deep/c.yaml", "specs/deep/d.YAML", "specs/g.json"]);
+    expect(specFilesIn(memoryHost(["only/net.json"]), "only")).toEqual(["only/net.json"]);
   });
 });
 
@@ -70,6 +74,7 @@ describe("expandInputs", () => {
       { kind: "file", path: "specs/b.yaml", argument: "specs" },
       { kind: "file", path: "specs/deep/c.yaml", argument: "specs" },
       { kind: "file", path: "specs/deep/d.YAML", argument: "specs" },
+      { kind: "file", path: "specs/g.json", argument: "specs" },
       { kind: "file", path: "plain-name", argument: "plain-name" },
     ]);
   });
@@ -83,7 +88,7 @@ describe("expandInputs", () => {
       { kind: "error", argument: "missing.yaml", message: "missing.yaml: no such file or folder" },
       { kind: "file", path: "specs/b.yaml", argument: "specs/b.yaml" },
       { kind: "error", argument: "nothing/*.yaml", message: "nothing/*.yaml: no file matches this pattern" },
-      { kind: "error", argument: "empty", message: "empty: the folder holds no .yaml or .yml files" },
+      { kind: "error", argument: "empty", message: "empty: the folder holds no .yaml, .yml or .json files" },
     ]);
   });
   test("- reads the paths listed on stdin, in place", () => {

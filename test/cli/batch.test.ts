@@ -2,6 +2,7 @@ import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, test } from "vitest";
+import { parse as parseYaml } from "yaml";
 import { runCli, type CliRun } from "../helpers/run.js";
 import { parseRfc4180 } from "../report/rfc4180.js";
 import { smallSpec, tinySpec, writeSpecs } from "../batch/generate.js";
@@ -180,6 +181,21 @@ describe("headroom batch exit codes and options", () => {
     const varied = runCli(["check", join(small, "a.yaml"), "--plan", "mixed-bfloat16", "--vary", "training.batch=4,64"]);
     expect(varied.stderr).toBe(`${message} [training.batch=4]\n${message} [training.batch=64]\n`);
     expect(varied.status).toBe(2);
+  });
+
+  test("a folder holding only a .json spec is checked, as check reads one; a JSON Schema beside it is left out", () => {
+    const folder = mkdtempSync(join(tmpdir(), "headroom-batch-json-"));
+    try {
+      // the tiny spec as JSON (JSON is YAML 1.2's subset, YAML 1.2.2 §1.3), and the JSON Schema `headroom schema` writes
+      writeFileSync(join(folder, "tiny.json"), JSON.stringify(parseYaml(tinySpec("tiny-json"))));
+      writeFileSync(join(folder, "network-spec.schema.json"), runCli(["schema"]).stdout);
+      const run = runCli(["batch", folder, "--jsonl"]);
+      const rows = run.stdout.trim().split("\n").map((line) => JSON.parse(line));
+      expect(rows).toMatchObject([{ file: join(folder, "tiny.json"), status: "ok", name: "tiny-json", verdict: "fits" }]);
+      expect(run.status).toBe(0);
+    } finally {
+      rmSync(folder, { recursive: true, force: true });
+    }
   });
 
   test("--jsonl, --csv and --md exclude each other; --workers must be a whole number", () => {
