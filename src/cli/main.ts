@@ -47,12 +47,8 @@ function parserMessage(error: CommanderError, command: Command, program: Command
   switch (error.code) {
     case "commander.unknownOption":
       return unknownOptionMessage(quoted[0] ?? "", command);
-    case "commander.unknownCommand": {
-      const name = quoted[0] ?? "";
-      const names = program.commands.map((c) => c.name()).concat("help");
-      const hint = didYouMean(name, names);
-      return `unknown command ${JSON.stringify(name)}${hint === "" ? `; see ${path} --help` : hint}`;
-    }
+    case "commander.unknownCommand":
+      return unknownCommandMessage(quoted[0] ?? "", program);
     case "commander.missingArgument":
       return `missing argument ${JSON.stringify(quoted[0] ?? "")}; ${usage}`;
     case "commander.optionMissingArgument": {
@@ -72,6 +68,28 @@ function parserMessage(error: CommanderError, command: Command, program: Command
       return quoted.map(longFlag).join(" cannot be used with ");
   }
   return text.replace(/'([^']*)'/g, (_, name: string) => JSON.stringify(name)).replace(/\s*\n\s*/g, " ").replace(/\.$/, "");
+}
+
+/** `unknown command "chek" (did you mean "check"?)`, or with no near name, where the commands are listed. */
+function unknownCommandMessage(name: string, program: Command): string {
+  const names = program.commands.map((c) => c.name()).concat("help");
+  const hint = didYouMean(name, names);
+  return `unknown command ${JSON.stringify(name)}${hint === "" ? `; see ${program.name()} --help` : hint}`;
+}
+
+/**
+ * A command name headroom does not know, asked for help (`headroom measure --help`, `headroom help measure`): commander
+ * would print the program's help and exit 0, as if the command existed, while `headroom measure` alone is an input
+ * error. It is the same error with help asked for. Undefined when the arguments name a known command or none.
+ */
+function unknownCommandAskedForHelp(argv: readonly string[], program: Command): string | undefined {
+  const operands = argv.slice(2);
+  const [first, second] = operands;
+  if (first === undefined || first.startsWith("-")) return undefined;
+  const known = (name: string): boolean => program.commands.some((c) => c.name() === name || c.aliases().includes(name));
+  if (first === "help") return second !== undefined && !second.startsWith("-") && !known(second) ? unknownCommandMessage(second, program) : undefined;
+  const help = operands.slice(1, operands.includes("--") ? operands.indexOf("--") : undefined).some((a) => a === "--help" || a === "-h");
+  return help && !known(first) ? unknownCommandMessage(first, program) : undefined;
 }
 
 /** `--to` of `--to <formats>`, `--version` of `-V, --version`. */
@@ -111,6 +129,8 @@ export async function main(argv: readonly string[]): Promise<number> {
   takeExitCode();
   let code: number;
   try {
+    const unknown = unknownCommandAskedForHelp(argv, program);
+    if (unknown !== undefined) throw new UserError(unknown);
     await program.parseAsync([...argv]);
     code = takeExitCode();
   } catch (error) {

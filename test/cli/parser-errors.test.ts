@@ -25,6 +25,11 @@ const CASES: [string[], string][] = [
   // "chek" is "check" less one letter
   [["chek", SPEC], 'headroom: unknown command "chek" (did you mean "check"?)'],
   [["xyzzy"], 'headroom: unknown command "xyzzy"; see headroom --help'],
+  // asking an unknown command for help is the same error, not the program's help with exit 0
+  [["measure", "--help"], 'headroom: unknown command "measure"; see headroom --help'],
+  [["measure", "-h"], 'headroom: unknown command "measure"; see headroom --help'],
+  [["chek", SPEC, "--help"], 'headroom: unknown command "chek" (did you mean "check"?)'],
+  [["help", "measure"], 'headroom: unknown command "measure"; see headroom --help'],
   [["check"], 'headroom: missing argument "spec"; usage: headroom check [options] <spec>'],
   [["scan"], 'headroom: missing argument "files"; usage: headroom scan [options] <files...>'],
   [["check", SPEC, "--plan"], "headroom: --plan: no value given (--plan <name>)"],
