@@ -92,7 +92,10 @@ function parseYaml(text: string, source: string, parsed = parseWithPositions(tex
               : `yaml: ${yamlMessage(error.message)}`,
       };
       return error.code === "DUPLICATE_KEY" ? { ...issue, ...duplicateKey(doc, counter, error.pos[0]) } : issue;
-    });
+    })
+      // the library can report one place once per construct it lies in (an unclosed `{` of a truncated JSON file: "flow
+      // map in block collection must ... end with a }", then "flow map must end with a }"): one line per place, the first
+      .filter((issue, index, all) => all.findIndex((other) => other.line === issue.line && other.column === issue.column) === index);
     // a key written twice leaves the document readable: the rest of the spec is still checked, so every problem of the
     // file is reported at once (the later value of the key is the one checked, as a YAML reader keeping one would)
     if (doc.errors.every((error) => error.code === "DUPLICATE_KEY")) {

@@ -76,6 +76,24 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     expect(bad.stderr).not.toMatch(STACK);
   });
 
+  it("a truncated JSON spec: one line for its one problem, not the same place twice", () => {
+    const dir = mkdtempSync(join(tmpdir(), "headroom-truncated-"));
+    try {
+      // an invented classifier written as JSON, cut off inside its layers (an unclosed `{` at the end of the file)
+      const path = join(dir, "cut.json");
+      writeFileSync(path, '{\n  "input": { "features": 16 },\n  "training": { "batch": 8, "loss": { "kind": "cross-entropy", "classes": 4 } },\n  "layers": [\n    { "type": "dense", "width": 4 ');
+      const run = runCli(["check", path]);
+      expect(run.status).toBe(2);
+      const lines = run.stderr.trimEnd().split("\n");
+      expect(lines).toHaveLength(1);
+      expect(lines[0]!.startsWith(`${path}:`)).toBe(true);
+      expect(lines[0]).toMatch(/^[^:]+:\d+:\d+: yaml: flow (map|sequence)/);
+      expect(run.stdout).toBe("");
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+  });
+
   it("a network that parses but cannot be built is positioned like any spec problem", () => {
     const run = runCli(["check", "test/fixtures/specs/hazards/graph-error.yaml"]);
     expect(run.status).toBe(2);
