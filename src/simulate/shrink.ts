@@ -245,18 +245,31 @@ export function suggestShrink(spec: NetworkSpec, limit: number, steps: number): 
   return undefined;
 }
 
+/**
+ * Two byte counts in GiB, each with one decimal (two below 1 GiB) and more for both until the need reads larger than
+ * the limit: a need just above the limit reads "4.04 GiB ... the limit of 4.00 GiB", not "4.0 GiB ... 4.0 GiB". At
+ * most 9 more (2^-30 GiB is one byte).
+ */
+function gibApart(need: number, limit: number): [string, string] {
+  const decimals = (bytes: number, extra: number): number => (bytes < 2 ** 30 ? 2 : 1) + extra;
+  let extra = 0;
+  while (extra < 9 && Number((need / 2 ** 30).toFixed(decimals(need, extra))) <= Number((limit / 2 ** 30).toFixed(decimals(limit, extra)))) extra++;
+  return [`${(need / 2 ** 30).toFixed(decimals(need, extra))} GiB`, `${(limit / 2 ** 30).toFixed(decimals(limit, extra))} GiB`];
+}
+
 /** Throw SimulationTooLarge when the graph's estimate exceeds the limit, naming the memory and a shrink that fits. */
 export function checkMemory(original: NetworkSpec, graph: Graph, steps: number, limit: number, shrunk: boolean): number {
   const need = estimateMemory(graph, steps);
   if (need <= limit) return need;
   const suggestion = suggestShrink(original, limit, steps);
   const gib = (b: number): string => `${(b / 2 ** 30).toFixed(b < 2 ** 30 ? 2 : 1)} GiB`;
+  const [needText, limitText] = gibApart(need, limit);
   const advice =
     suggestion !== undefined
       ? `; --shrink ${suggestion} (widths, batch and positions ÷${suggestion}) would need about ${gib(memoryAfterShrink(original, { width: suggestion, batch: suggestion, positions: suggestion }, steps))}`
       : "; even shrinking widths, batch and positions by 1024 does not fit";
   throw new SimulationTooLarge(
-    `simulating ${graph.name}${shrunk ? " (as shrunk)" : ""} would need about ${gib(need)} of memory, more than the limit of ${gib(limit)}${advice}`,
+    `simulating ${graph.name}${shrunk ? " (as shrunk)" : ""} would need about ${needText} of memory, more than the limit of ${limitText}${advice}`,
     need,
     limit,
     suggestion,
