@@ -73,13 +73,38 @@ function short(value: number, digits = 5): string {
   return `${mantissa.replace(/\.?0+$/, "")}e${exponent.replace("+", "")}`;
 }
 
-/** The largest finite value and the overflow threshold, with enough digits to tell them apart (binary32 needs 9). */
+/**
+ * The largest finite value and the overflow threshold, with enough digits to tell them apart (binary32 needs 9,
+ * binary64 17). binary64's threshold is no binary64 number (it lies halfway between the largest finite value and
+ * 2^1024), so it is written from its exact value.
+ */
 function limitPair(f: Format): [string, string] {
-  if (!Number.isFinite(f.overflowThreshold)) return [short(f.maxFinite), "none"];
+  const threshold = (digits: number): string => (Number.isFinite(f.overflowThreshold) ? short(f.overflowThreshold, digits) : exactThreshold(f, digits));
   let digits = 5;
-  while (digits < 17 && short(f.maxFinite, digits) === short(f.overflowThreshold, digits)) digits++;
+  while (digits < 17 && short(f.maxFinite, digits) === threshold(digits)) digits++;
   const sign = f.overflowsAtThreshold ? "≥ " : "> ";
-  return [short(f.maxFinite, digits), sign + short(f.overflowThreshold, digits)];
+  return [short(f.maxFinite, digits), sign + threshold(digits)];
+}
+
+/**
+ * The round-to-nearest-even overflow threshold of an IEEE format, (2 − 2^-p)·2^emax = 2^(emax+1) − 2^(emax−p) (IEEE
+ * 754-2019 §4.3.1 and §7.4: a value at or past it rounds to infinity), to `digits` significant digits, computed in
+ * integers (emax ≥ p, as for binary64) and written as {@link short} writes large numbers.
+ */
+function exactThreshold(f: Format, digits: number): string {
+  const value = (1n << BigInt(f.emax + 1)) - (1n << BigInt(f.emax - f.precision));
+  const text = value.toString();
+  // round half up at the digit after the last kept one (the exact value has no trailing digits to settle a tie)
+  let kept = BigInt(text.slice(0, digits));
+  if (Number(text[digits] ?? "0") >= 5) kept += 1n;
+  let exponent = text.length - 1;
+  let mantissa = kept.toString();
+  if (mantissa.length > digits) {
+    mantissa = mantissa.slice(0, digits);
+    exponent += 1;
+  }
+  const fraction = mantissa.slice(1).replace(/0+$/, "");
+  return `${mantissa[0]}${fraction === "" ? "" : `.${fraction}`}e${exponent}`;
 }
 
 /** A power of two with its value: 2^-14 = 6.104e-5. */

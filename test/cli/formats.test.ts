@@ -11,6 +11,9 @@ describe("headroom formats (the built binary)", () => {
     expect(run.stdout).toMatch(/binary16\s+65504\s+≥ 65520\s+2\^-14 = 6\.104e-5\s+2\^-24 = 5\.96e-8/);
     expect(run.stdout).toMatch(/e4m3\s+448\s+> 464\s+2\^-6 = 0\.01563\s+2\^-9 = 0\.001953/);
     expect(run.stdout).toMatch(/e5m2\s+57344\s+≥ 61440/);
+    // IEEE 754-2019 §4.3.1, §7.4: binary64 rounds to infinity at (2 − 2^-53)·2^1023 = 2^1024 − 2^970 and beyond (the tie
+    // goes to the even 2^1024), 1.797693134862315807937…e308; its largest finite value is (2 − 2^-52)·2^1023 = 1.7976931348623157e308
+    expect(run.stdout).toMatch(/binary64\s+1\.7976931348623157e308\s+≥ 1\.7976931348623158e308\s/);
     expect(run.stdout).toMatch(/tf32.*compute only/);
     expect(run.stdout).toMatch(/e4m3 .*no\s+saturates/);
   });
