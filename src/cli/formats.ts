@@ -169,7 +169,8 @@ export function renderFormatsTable(formats: readonly Format[]): string {
     "on overflow: the default; e4m3 (no infinity) saturates to ±448, or gives NaN with --overflow infinity-or-nan.",
   ];
   if (formats.some((f) => f.computeOnly)) {
-    notes.push("tf32 is a compute precision applied to binary32 inputs of matrix products (held in 4 bytes), not a storage format.");
+    notes.push("tf32 is a compute precision applied to binary32 inputs of matrix products (held in 4 bytes, as binary32);");
+    notes.push("  a plan that names it is judged on values rounded to tf32.");
   }
   if (formats.some((f) => f.subnormalsOftenFlushed)) {
     notes.push("bfloat16 subnormals are often flushed to zero by hardware; then its range ends at the smallest normal.");

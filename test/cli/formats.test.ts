@@ -18,6 +18,15 @@ describe("headroom formats (the built binary)", () => {
     expect(run.stdout).toMatch(/e4m3 .*no\s+saturates/);
   });
 
+  it("tf32, never kept in a 19-bit encoding, is said to be judged as values rounded to tf32 when a plan names it, as check does", () => {
+    const notes = runCli(["formats", "tf32"]).stdout;
+    expect(notes).not.toMatch(/not a storage format/);
+    expect(notes).toContain("a plan that names it is judged on values rounded to tf32");
+    const run = runCli(["check", "specs/deep-relu-he.yaml", "--format", "tf32", "--json"]);
+    expect(run.status).toBe(0);
+    expect(JSON.parse(run.stdout).formats.map((f: { format: string }) => f.format)).toEqual(["tf32"]);
+  });
+
   it("--json gives every number exact, infinity as null (OCP 8-bit specification: e4m3 max 448, bias 7)", () => {
     const run = runCli(["formats", "--json"]);
     expect(run.status).toBe(0);

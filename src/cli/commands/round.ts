@@ -7,7 +7,7 @@ import { lazyAction } from "./define.js";
 
 /**
  * What `round` rounds into without --to: the formats values are stored in, in FORMAT_NAMES order. Not tf32 (a compute
- * precision of matrix units, never stored) nor binary64 (values are read as binary64: rounding into it changes nothing).
+ * precision of matrix units, held in binary32's 4 bytes) nor binary64 (values are read as binary64: rounding into it changes nothing).
  */
 export const STORAGE_FORMATS: readonly Format[] = FORMAT_NAMES.map((name) => FORMATS[name]).filter(
   (format) => !format.computeOnly && format.name !== "binary64",
