@@ -595,6 +595,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
       profileOf(seed.target.gradient, seed.target.elements),
       build ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
     );
+    if (build) (p.tensors[p.tensors.length - 1] as PredictedTensor).partOf = `${last.name}/activation-gradient`;
   }
   p.backward(graph.layers, seed.gradient, seedNode, true);
   p.finish();
@@ -647,6 +648,8 @@ class PredictedTensor {
   end: MagnitudeProfile;
   declare ledger: LedgerEntry[];
   source: "predicted" | "measured";
+  // set on the few tensors that are part of another's array, so the others keep their shape
+  declare partOf?: string;
   #node: LedgerNode | null;
   #cached: LedgerEntry[] | undefined;
 

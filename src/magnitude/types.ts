@@ -107,6 +107,11 @@ export interface TensorPrediction {
   ledger: LedgerEntry[];
   /** "measured" where a tensor file or recorded statistics replaced the prediction */
   source: "predicted" | "measured";
+  /**
+   * The id of the tensor whose stored array holds this one's elements too, when the prediction tells one array's
+   * elements apart (the loss gradient's right-class elements, `:target-class`, are part of its `activation-gradient`)
+   */
+  partOf?: string;
 }
 
 /** Places where an operation, not a stored tensor, can overflow or lose values. */

@@ -90,6 +90,8 @@ export interface TensorCheck {
   slot: PlanSlot;
   shape: number[];
   source: "predicted" | "measured";
+  /** present on a tensor whose elements are stored in another tensor's array (TensorPrediction.partOf) */
+  partOf?: string;
   /** predicted profiles, before the loss scale */
   start: MagnitudeProfile;
   end: MagnitudeProfile;
@@ -354,6 +356,8 @@ export interface ScaledSubjects {
   tensors: readonly TensorPrediction[];
   sites: readonly { site: HazardSite; origin: HazardCheck["origin"] }[];
   weightGradients: readonly TensorPrediction[];
+  /** the parts of each stored array that holds several tensors (storedArrays) */
+  arrays: Map<string, TensorPrediction[]> | null;
 }
 
 /** Whether an operation site's numbers move with the loss scale: the scaled loss, and gradients summed across workers or steps. */
@@ -365,7 +369,8 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
   const sites: ScaledSubjects["sites"][number][] = [];
   for (const site of prediction.hazards) if (isScaledSite(site.kind)) sites.push({ site, origin: "prediction" });
   for (const site of trainingSites(spec, prediction)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
-  return { spec, tensors: prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role)), sites, weightGradients: weightGradientsOf(prediction) };
+  const tensors = prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role));
+  return { spec, tensors, sites, weightGradients: weightGradientsOf(prediction), arrays: storedArrays(tensors) };
 }
 
 /**
@@ -395,7 +400,7 @@ export function judgeScaled(
       for (const f of evaluateHazard(site, context, origin).findings) if (f.format === format && !visit(f, i)) return;
       continue;
     }
-    for (const risk of judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false).risks) {
+    for (const risk of judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays).risks) {
       if (risk.format !== format) continue;
       for (const f of risk.findings) if (!visit(f, i)) return;
     }
@@ -471,12 +476,41 @@ function judgeTensors(
   ledger: boolean,
 ): TensorCheck[] {
   const tensors: TensorCheck[] = [];
+  const arrays = storedArrays(predicted);
   for (let i = 0; i < predicted.length; i++) {
     const tensor = predicted[i] as TensorPrediction;
-    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat);
+    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays);
     tensors.push(ledger ? withLedger(check, tensor.ledger) : check);
   }
   return tensors;
+}
+
+/** Per tensor that shares its stored array with others (`partOf`), every part of that array; null when none does. */
+function storedArrays(predicted: readonly TensorPrediction[]): Map<string, TensorPrediction[]> | null {
+  let arrays: Map<string, TensorPrediction[]> | null = null;
+  for (let i = 0; i < predicted.length; i++) {
+    const whole = (predicted[i] as TensorPrediction).partOf;
+    if (whole === undefined) continue;
+    arrays ??= new Map();
+    if (!arrays.has(whole)) {
+      const parts = predicted.filter((t) => t.id === whole || t.partOf === whole);
+      for (const part of parts) arrays.set(part.id, parts);
+    }
+  }
+  return arrays;
+}
+
+/** The statistics of a tensor that is part of a stored array, with the array's max (the larger of its parts'). */
+function withArrayMax(scaled: ScaledTensor, parts: readonly TensorPrediction[], tensor: TensorPrediction, thresholds: RiskThresholds): ScaledTensor {
+  let start = scaled.statistics.start.max;
+  let end = scaled.statistics.end.max;
+  for (const part of parts) {
+    if (part === tensor) continue;
+    const other = scaledTensor(part, scaled.statistics.factor, thresholds).statistics;
+    start = Math.max(start, other.start.max);
+    end = Math.max(end, other.end.max);
+  }
+  return { ...scaled, statistics: { ...scaled.statistics, arrayMax: { start, end } } };
 }
 
 // the format risks of the tensor being judged (its first entries), before they are copied out
@@ -488,8 +522,11 @@ function judgeTensor(
   lossScale: number,
   thresholds: RiskThresholds,
   everyFormat: boolean,
+  arrays: Map<string, TensorPrediction[]> | null,
 ): TensorCheck {
-  const scaled = scaledTensor(tensor, lossScale, thresholds);
+  const parts = arrays?.get(tensor.id);
+  const ownScaled = scaledTensor(tensor, lossScale, thresholds);
+  const scaled = parts === undefined ? ownScaled : withArrayMax(ownScaled, parts, tensor, thresholds);
   // a format judged at another loss scale sees the tensor scaled by its own (gradients only; the rest are unscaled)
   let other: ScaledTensor | undefined;
   // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
@@ -507,7 +544,10 @@ function judgeTensor(
     if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === scaled.statistics.factor) {
       risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
     } else {
-      if (other === undefined || other.statistics.factor !== setting.lossScale) other = scaledTensor(tensor, setting.lossScale, thresholds);
+      if (other === undefined || other.statistics.factor !== setting.lossScale) {
+        other = scaledTensor(tensor, setting.lossScale, thresholds);
+        if (parts !== undefined) other = withArrayMax(other, parts, tensor, thresholds);
+      }
       risk = { ...scaledTensorRisk(tensor, other, setting.limits, judged ? setting.held : setting.notHeld), statistics: other.statistics };
     }
     RISKS[count++] = risk;
@@ -523,6 +563,7 @@ function judgeTensor(
     slot: tensor.slot,
     shape: tensor.shape,
     source: tensor.source,
+    ...(tensor.partOf === undefined ? {} : { partOf: tensor.partOf }),
     start: tensor.start,
     end: tensor.end,
     statistics: scaled.statistics,

@@ -76,6 +76,11 @@ export interface TensorStatistics {
   factor: number;
   start: ProfileStatistics;
   end: ProfileStatistics;
+  /**
+   * When the tensor is one part of a stored array (the loss gradient's right-class and other elements): the array's
+   * predicted max at the start and the end, the larger of its parts' (a per-tensor scale is set from the whole array)
+   */
+  arrayMax?: { start: number; end: number };
 }
 
 /** The factor the loss scale contributes to a tensor of this role. */
@@ -190,9 +195,9 @@ export function tensorFormatRisk(
 /** {@link tensorFormatRisk} from a {@link scaledTensor}: the same numbers, without scaling the profiles again. */
 export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
   const { statistics } = scaled;
-  const start = evaluate(scaled.start, statistics.start, limits, options);
+  const start = evaluate(scaled.start, statistics.start, statistics.arrayMax?.start ?? statistics.start.max, limits, options);
   const startScaleLog2 = evaluatedScaleLog2;
-  const end = scaled.same ? start : evaluate(scaled.end, statistics.end, limits, options);
+  const end = scaled.same && statistics.arrayMax?.start === statistics.arrayMax?.end ? start : evaluate(scaled.end, statistics.end, statistics.arrayMax?.end ?? statistics.end.max, limits, options);
   const endScaleLog2 = evaluatedScaleLog2;
   const worst = worseOf(start, end);
   let mass: FlushedMass | null = null;
@@ -261,6 +266,7 @@ let evaluatedScaleLog2 = 0;
 function evaluate(
   scaled: MagnitudeProfile,
   stats: ProfileStatistics,
+  arrayMax: number,
   limits: RangeLimits,
   options: TensorRiskOptions,
 ): TensorProfileRisk {
@@ -268,7 +274,8 @@ function evaluate(
     evaluatedScaleLog2 = 0;
     return withNoise(profileRisk(scaled, limits, stats), scaled, limits);
   }
-  const scaleLog2 = perTensorScaleLog2(stats.max, limits.maxFinite);
+  // the conversion scales the whole stored array by one factor, set from its largest elements
+  const scaleLog2 = perTensorScaleLog2(arrayMax, limits.maxFinite);
   const factor = 2 ** scaleLog2;
   // scaling is linear, so the statistics scale with it
   const rescaled: ProfileStatistics = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };

@@ -94,7 +94,10 @@ class Recorder {
     const scaling = this.setup.plan.scaling;
     const factor = meta.countsScaledBy;
     if (factor === undefined) {
-      this.stats.set(meta.id, { meta, stats: measureTensor(values, format, options, storageScales(values, format, scaling)) });
+      // a per-tensor scale is the whole array's, also for the part of it measured here (the right-class elements);
+      // per-block scales follow each block's own elements, which the parts measured apart hardly share
+      const scales = storageScales(scaling === "tensor" ? data : values, format, scaling);
+      this.stats.set(meta.id, { meta, stats: measureTensor(values, format, options, scales) });
       return;
     }
     // what storing is judged on: the values times the factor (the loss times the loss scale), their magnitudes kept
