@@ -5,7 +5,7 @@
 import { check, type CheckAnswer, type MeasuredNetwork } from "./check.js";
 import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
-import { VERDICT_RANK, type CheckResult, type Verdict } from "./risk/index.js";
+import { VERDICT_RANK, type AppliedLossScale, type CheckResult, type Verdict } from "./risk/index.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import { OPTIMIZER_THRESHOLDS, type OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
@@ -56,8 +56,11 @@ export interface PlanOutcome {
   plan: PrecisionPlan;
   /** whether the plan is one of the spec's own */
   fromSpec: boolean;
-  /** the loss scale the plan was judged with (the window's pick when the plan gives none), or null */
-  lossScale: number | null;
+  /**
+   * the loss scale the plan's gradients were judged with, as check's `lossScale`: `value`, `origin` (`plan`,
+   * `recommended`: the window's pick, or `none`: 1, no scale needed or none fits) and the `window` when one was searched
+   */
+  lossScale: AppliedLossScale;
   lossScaleAnswer: LossScaleAnswer | null;
   optimizer: OptimizerCheck;
   /**
@@ -90,7 +93,16 @@ export interface FindingCounts {
   atRisk: number;
 }
 
+/** The layout version of a comparison (README.md, "Comparing plans"). */
+export const COMPARISON_VERSION = 2;
+
 export interface PlanComparison {
+  /**
+   * layout version: 2 since a plan's `lossScale` is check's object, its one `verdict` is check's, and `formats` and
+   * `findingCounts` exist (the output before had no version, `trainsSafely`, `checkVerdict` and a number or null for
+   * `lossScale`)
+   */
+  version: typeof COMPARISON_VERSION;
   spec: { name: string; source: string };
   /** best first */
   outcomes: PlanOutcome[];
@@ -181,7 +193,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
     const result = check(planned, options.seed === undefined ? {} : { seed: options.seed }, options.measurements);
     const answer = result.lossScaleAnswer;
     const optimizer = result.optimizer;
-    const lossScale = result.lossScale.origin === "none" ? null : result.lossScale.value;
+    const lossScale = result.lossScale;
     const verdict = result.verdict;
     const cost = planCost(spec, plan, result);
     if (referenceBytes === null) {
@@ -218,6 +230,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
       VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict],
   );
   return {
+    version: COMPARISON_VERSION,
     spec: { name: spec.name, source: spec.source },
     outcomes: ranked,
     baseline: { name: "all binary32", plan: ALL_BINARY32_PLAN, bytes: referenceBytes ?? 0 },

@@ -1,3 +1,5 @@
+import type { UnscaledReason } from "../check.js";
+
 /**
  * The plain data of a batch run: one row per spec (or per variant of a spec), summarised from a
  * check in the worker so only small rows cross between threads.
@@ -9,17 +11,20 @@ export type SummaryVerdict = "fits" | "at-risk" | "fails";
 /** How the number of a risk reads: a per-step probability, a share, binades, a relative error, or a count of elements. */
 export type RiskMeasure = "probability" | "share" | "binades" | "relative-error" | "count";
 
-/** The loss-scale part of a summary. */
+/**
+ * The loss-scale part of a summary, in the names and shapes of the check's JSON (`lossScale.window`, `lossScales[]`).
+ */
 export type LossScaleSummary =
-  /** a window of powers of two, with the pick inside it (exponents of 2) */
-  | { status: "window"; pickLog2: number; lowLog2: number; highLog2: number }
-  /** no static scale serves the whole horizon; `reason` says why in plain words */
-  | { status: "empty"; reason: string }
+  /** a window of powers of two, with the pick inside it (exponents of 2), as the check's window names them */
+  | { status: "window"; pickLog2: number; lowestLog2: number; highestLog2: number }
+  /** no static scale serves the whole horizon; `sentence` says why in plain words (the check answer's first sentence) */
+  | { status: "empty"; sentence: string }
   /**
    * no loss scale is needed: gradients are held in a format with binary32's range (bfloat16, binary32), or in an 8-bit
-   * format with scale factors; `reason` says which, as a clause (absent from rows that do not give it)
+   * format with scale factors; `reason` says which, as the check's `lossScales[].reason` does (absent from rows that do
+   * not give it)
    */
-  | { status: "not-needed"; reason?: string }
+  | { status: "not-needed"; reason?: UnscaledReason }
   /** the check did not evaluate a loss scale */
   | { status: "not-evaluated" };
 

@@ -94,7 +94,7 @@ function rowLossScaleCells(summary: SpecSummary): { pick: string; window: string
  */
 function lossScalesCsvCell(summary: SpecSummary): string {
   return (summary.lossScales ?? [])
-    .map((s) => (s.status === "window" ? `${s.format}:window:${s.pickLog2}:${s.lowLog2}:${s.highLog2}` : `${s.format}:${s.status}`))
+    .map((s) => (s.status === "window" ? `${s.format}:window:${s.pickLog2}:${s.lowestLog2}:${s.highestLog2}` : `${s.format}:${s.status}`))
     .join("; ");
 }
 
@@ -225,20 +225,28 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
 }
 
 /**
+ * The layout version of a JSON Lines row (README.md, "Checking many specs"): 2 since a row's names and shapes are the
+ * check's (`formats` an array, the window's `lowestLog2`/`highestLog2`, `reason` an object) and error rows have a verdict.
+ */
+export const BATCH_ROW_VERSION = 2;
+
+/**
  * JSON Lines: one object per row, in order, keys in a fixed order. Numbers are plain JSON numbers
- * (exponents of two for the loss scale); a script can parse each line on its own.
+ * (exponents of two for the loss scale); a script can parse each line on its own. Names and shapes are the check's
+ * JSON's (`formats[]` of `{ format, verdict }`, the window's `lowestLog2`/`highestLog2`), and every row, an error's
+ * too, has a `verdict` (`error` there, as the table and the CSV say).
  */
 export function renderBatchJsonl(rows: readonly BatchRow[]): string {
   return rows
     .map((row) => {
-      const base = { index: row.index, file: row.file, variant: row.variant, status: row.status };
-      if (row.status === "error") return JSON.stringify({ ...base, error: row.error });
+      const base = { version: BATCH_ROW_VERSION, index: row.index, file: row.file, variant: row.variant, status: row.status };
+      if (row.status === "error") return JSON.stringify({ ...base, verdict: "error", error: row.error });
       const s = row.summary;
       return JSON.stringify({
         ...base,
         name: s.name,
         verdict: s.verdict,
-        formats: Object.fromEntries(s.formats.map((f) => [f.format, f.verdict])),
+        formats: s.formats.map((f) => ({ format: f.format, verdict: f.verdict })),
         lossScale: s.lossScale,
         lossScales: s.lossScales ?? [],
         worst: s.worst,
@@ -317,8 +325,8 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
       s.verdict,
       ...FORMAT_NAMES.map((format) => formatVerdict(s, format) ?? ""),
       ls.status === "window" ? ls.pickLog2 : "",
-      ls.status === "window" ? ls.lowLog2 : "",
-      ls.status === "window" ? ls.highLog2 : "",
+      ls.status === "window" ? ls.lowestLog2 : "",
+      ls.status === "window" ? ls.highestLog2 : "",
       ls.status,
       s.worst?.subject ?? "",
       s.worst?.format ?? "",

@@ -25,7 +25,7 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     verdictText(o.verdict, style),
     // told apart as the batch table tells them ("not needed" there too; its "none" for an empty window is "none fits" here):
     // a bare "none" read the same for a plan that needs no scale and one that no static scale fits
-    o.lossScale !== null ? formatPowerOfTwo(Math.log2(o.lossScale)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
+    o.lossScale.origin !== "none" ? formatPowerOfTwo(Math.log2(o.lossScale.value)) : o.lossScaleAnswer?.window.empty === true ? "none fits" : "not needed",
     `${bytesPerElementText(o.cost.bytesPerParameter)} B`,
     `${bytesPerElementText(o.cost.bytesPerActivation)} B`,
     formatBytes(o.cost.parameterBytes + o.cost.activationBytes),

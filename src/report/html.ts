@@ -265,17 +265,17 @@ function lossScaleSection(summary: LossScaleSummary, notes: readonly string[]): 
     return `<p>${statusHtml} Whether any gradient overflows or flushes without a loss scale is in the tensors' findings.</p>${notesHtml}`;
   }
   if (summary.status === "empty") {
-    return `<p class="empty-window"><strong>${statusHtml}</strong> ${e(summary.reason)}</p>${notesHtml}`;
+    return `<p class="empty-window"><strong>${statusHtml}</strong> ${e(summary.sentence)}</p>${notesHtml}`;
   }
-  const lo = Math.min(0, summary.lowLog2 - 3);
-  const hi = Math.max(24, summary.highLog2 + 3);
+  const lo = Math.min(0, summary.lowestLog2 - 3);
+  const hi = Math.max(24, summary.highestLog2 + 3);
   const width = CHART_WIDTH;
   const height = 92;
   const x = scaleLinear().domain([lo, hi]).range([40, width - 40]).clamp(true);
   const ticks = scaleLinear().domain([lo, hi]).ticks(Math.min(hi - lo, 16)).filter(Number.isInteger);
-  let svg = `<svg class="chart scale-chart" role="img" aria-label="Loss-scale window" viewBox="0 0 ${width} ${height}" width="${width}" height="${height}" xmlns="http://www.w3.org/2000/svg"><title>Loss-scale window from ${formatPowerOfTwo(summary.lowLog2)} to ${formatPowerOfTwo(summary.highLog2)}, pick ${formatPowerOfTwo(summary.pickLog2)}</title>`;
+  let svg = `<svg class="chart scale-chart" role="img" aria-label="Loss-scale window" viewBox="0 0 ${width} ${height}" width="${width}" height="${height}" xmlns="http://www.w3.org/2000/svg"><title>Loss-scale window from ${formatPowerOfTwo(summary.lowestLog2)} to ${formatPowerOfTwo(summary.highestLog2)}, pick ${formatPowerOfTwo(summary.pickLog2)}</title>`;
   svg += `<rect class="scale-track" x="${n(x(lo))}" y="30" width="${n(x(hi) - x(lo))}" height="20"/>`;
-  svg += `<rect class="scale-window" x="${n(x(summary.lowLog2))}" y="30" width="${n(Math.max(2, x(summary.highLog2) - x(summary.lowLog2)))}" height="20"/>`;
+  svg += `<rect class="scale-window" x="${n(x(summary.lowestLog2))}" y="30" width="${n(Math.max(2, x(summary.highestLog2) - x(summary.lowestLog2)))}" height="20"/>`;
   svg += `<line class="scale-pick" x1="${n(x(summary.pickLog2))}" x2="${n(x(summary.pickLog2))}" y1="22" y2="58"/>`;
   svg += `<text class="scale-pick-label" x="${n(x(summary.pickLog2))}" y="16" text-anchor="middle">pick ${powerSvg(summary.pickLog2)}</text>`;
   for (const tick of ticks) {

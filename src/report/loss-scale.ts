@@ -10,12 +10,12 @@ import { formatPowerOfTwo } from "./number.js";
 
 /** A check's loss-scale item in a row's terms: the window's exponents, the empty window's first sentence, the reason. */
 export function itemSummary(item: LossScaleItem): FormatLossScale {
-  if (item.status === "not-needed") return { format: item.format, status: "not-needed", reason: item.reason.sentence };
+  if (item.status === "not-needed") return { format: item.format, status: "not-needed", reason: item.reason };
   const w = item.answer.window;
   if (item.status === "window" && w.pickLog2 !== null && w.lowestLog2 !== null && w.highestLog2 !== null) {
-    return { format: item.format, status: "window", pickLog2: w.pickLog2, lowLog2: w.lowestLog2, highLog2: w.highestLog2 };
+    return { format: item.format, status: "window", pickLog2: w.pickLog2, lowestLog2: w.lowestLog2, highestLog2: w.highestLog2 };
   }
-  return { format: item.format, status: "empty", reason: item.answer.sentences[0] ?? "no power of two keeps every gradient from both overflowing and flushing" };
+  return { format: item.format, status: "empty", sentence: item.answer.sentences[0] ?? "no power of two keeps every gradient from both overflowing and flushing" };
 }
 
 /** Every loss-scale item of a check in a row's terms; empty for a result without them (a bare judgement). */
@@ -38,7 +38,7 @@ export function lossScaleCells(lossScale: LossScaleSummary): { pick: string; win
     case "window":
       return {
         pick: formatPowerOfTwo(lossScale.pickLog2),
-        window: `${formatPowerOfTwo(lossScale.lowLog2)}..${formatPowerOfTwo(lossScale.highLog2)}`,
+        window: `${formatPowerOfTwo(lossScale.lowestLog2)}..${formatPowerOfTwo(lossScale.highestLog2)}`,
       };
     case "empty":
       return { pick: "none", window: "empty" };
@@ -62,7 +62,7 @@ export function lossScaleClause(lossScale: LossScaleSummary): string {
     case "empty":
       return "no static scale serves the whole horizon";
     case "not-needed":
-      return lossScale.reason === undefined ? "not needed" : `not needed (${lossScale.reason})`;
+      return lossScale.reason === undefined ? "not needed" : `not needed (${lossScale.reason.sentence})`;
     case "not-evaluated":
       return "not evaluated";
   }

@@ -92,6 +92,6 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
 function lossScaleLine(head: string, scale: LossScaleSummary): string {
   const clause = lossScaleClause(scale);
   if (scale.status === "not-evaluated") return `\n${head}: _${escapeMarkdown(clause)}_.\n`;
-  const reason = scale.status === "empty" ? ` ${escapeMarkdown(scale.reason)}` : "";
+  const reason = scale.status === "empty" ? ` ${escapeMarkdown(scale.sentence)}` : "";
   return `\n${head}: ${escapeMarkdown(clause)}.${reason}\n`;
 }

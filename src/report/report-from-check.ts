@@ -125,7 +125,7 @@ export function reportModel(result: CheckResult | CheckAnswer, options: ReportMo
   const optimizerReasons =
     "optimizer" in result && result.optimizer.verdict !== "fits" ? result.optimizer.reasons.map((r) => r.charAt(0).toUpperCase() + r.slice(1)) : [];
   const scales = lossScaleModels(result);
-  const scaleReasons = scales.flatMap((s) => (s.summary.status === "empty" ? [s.summary.reason] : []));
+  const scaleReasons = scales.flatMap((s) => (s.summary.status === "empty" ? [s.summary.sentence] : []));
   const reasons = [...result.formats.flatMap((f) => f.reasons), ...scaleReasons, ...optimizerReasons];
   const settings = planSettings(result.plan);
   return {

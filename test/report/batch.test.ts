@@ -42,7 +42,7 @@ const ROWS: BatchRow[] = [
       name: "wide",
       verdict: "at-risk",
       formats: [{ format: "binary16", verdict: "at-risk" }, { format: "binary32", verdict: "fits" }],
-      lossScale: { status: "window", pickLog2: 12, lowLog2: 8, highLog2: 15 },
+      lossScale: { status: "window", pickLog2: 12, lowestLog2: 8, highestLog2: 15 },
       worst: {
         subject: "block-3/activation-gradient",
         format: "binary16",
@@ -71,7 +71,7 @@ const ROWS: BatchRow[] = [
       name: "deep",
       verdict: "fails",
       formats: [{ format: "binary16", verdict: "fails" }],
-      lossScale: { status: "empty", reason: "gradients flush before activations overflow" },
+      lossScale: { status: "empty", sentence: "gradients flush before activations overflow" },
       worst: {
         subject: "embed/weight-gradient",
         format: "binary16",
@@ -150,7 +150,7 @@ describe("renderBatchJsonl", () => {
     expect(lines.at(-1)).toBe("");
     const objects = lines.slice(0, -1).map((line) => JSON.parse(line));
     expect(objects.map((o) => o.index)).toEqual([0, 1, 2, 3]);
-    expect(objects[1]).toMatchObject({ verdict: "at-risk", formats: { binary16: "at-risk", binary32: "fits" }, lossScale: { pickLog2: 12 } });
+    expect(objects[1]).toMatchObject({ verdict: "at-risk", formats: [{ format: "binary16", verdict: "at-risk" }, { format: "binary32", verdict: "fits" }], lossScale: { pickLog2: 12 } });
     expect(objects[2]).toMatchObject({ status: "error", error: { position: { line: 4, column: 10 } } });
   });
 });
@@ -232,7 +232,7 @@ describe("a check with two loss-scale answers (check --format binary16,e5m2)", (
   const [b16, e5m2] = [result.lossScaleAnswer!.window, result.moreLossScaleAnswers![0]!.window];
   const row: BatchRow = { index: 0, file: "wide.yaml", variant: null, status: "ok", summary: summarizeCheck(result) };
   // an answer's row fields: the window's exponents of two, or "empty"
-  const fields = (w: typeof b16) => (w.empty ? { status: "empty" } : { status: "window", pickLog2: w.pickLog2, lowLog2: w.lowestLog2, highLog2: w.highestLog2 });
+  const fields = (w: typeof b16) => (w.empty ? { status: "empty" } : { status: "window", pickLog2: w.pickLog2, lowestLog2: w.lowestLog2, highestLog2: w.highestLog2 });
   const cell = (w: typeof b16) => (w.empty ? "none" : `2^${w.pickLog2}`);
   const windowCell = (w: typeof b16) => (w.empty ? "empty" : `2^${w.lowestLog2}..2^${w.highestLog2}`);
 
@@ -320,7 +320,7 @@ describe("the loss-scale columns of the batch table", () => {
         name: `w${index}`,
         verdict: "fits",
         formats: [{ format: "binary16", verdict: "fits" }],
-        lossScale: { status: "window", pickLog2, lowLog2: -9, highLog2: 18 },
+        lossScale: { status: "window", pickLog2, lowestLog2: -9, highestLog2: 18 },
         worst: null,
       },
     });

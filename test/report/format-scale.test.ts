@@ -98,11 +98,11 @@ describe("HTML report", () => {
     expect(model.lossScale.summary).toEqual({
       status: "window",
       pickLog2: e5m2Pick,
-      lowLog2: e5m2.lossScaleAnswer!.window.lowestLog2,
-      highLog2: e5m2.lossScaleAnswer!.window.highestLog2,
+      lowestLog2: e5m2.lossScaleAnswer!.window.lowestLog2,
+      highestLog2: e5m2.lossScaleAnswer!.window.highestLog2,
     });
     expect(model.moreLossScales).toEqual([
-      { format: "bfloat16", summary: { status: "not-needed", reason: "gradients are held in bfloat16, which has binary32's exponent range" }, notes: [] },
+      { format: "bfloat16", summary: { status: "not-needed", reason: { kind: "wide-range", sentence: "gradients are held in bfloat16, which has binary32's exponent range" } }, notes: [] },
     ]);
     const html = renderHtmlReport(model);
     expect(html).toContain("<h3>e5m2 gradients</h3>");

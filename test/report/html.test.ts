@@ -58,9 +58,9 @@ describe("renderHtmlReport", () => {
     expect(notEvaluated).not.toContain("scale-chart");
     const notNeeded = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed" }, notes: [] } });
     expect(notNeeded).toContain("<p>Loss scale: not needed.");
-    const because = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed", reason: "gradients are held in <x>" }, notes: [] } });
+    const because = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "not-needed", reason: { kind: "wide-range", sentence: "gradients are held in <x>" } }, notes: [] } });
     expect(because).toContain("<p>Loss scale: not needed (gradients are held in &lt;x&gt;).");
-    const empty = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "empty", reason: "gradients <flush>" }, notes: [] } });
+    const empty = renderHtmlReport({ ...demoModel(), lossScale: { summary: { status: "empty", sentence: "gradients <flush>" }, notes: [] } });
     expect(empty).toContain("Loss scale: no static scale serves the whole horizon.</strong> gradients &lt;flush&gt;");
   });
 });
