@@ -388,7 +388,8 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       // the most contributions whose √n·u stays within the at-risk threshold: n ≤ (threshold/u)²
       const most = Math.floor((context.thresholds.accumulationAtRisk / context.gradients.unitRoundoff) ** 2);
       const remedies = [
-        context.gradients.unitRoundoff > FORMATS.binary32.unitRoundoff ? "accumulate the sum in binary32" : "",
+        // the sum's running total sits in the gradient buffer, so the plan's gradients entry is what changes it
+        context.gradients.unitRoundoff > FORMATS.binary32.unitRoundoff ? "hold the gradients the contributions are summed into in binary32 (`gradients: binary32`)" : "",
         most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
       ].filter((x) => x !== "");
       return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
