@@ -19,7 +19,7 @@ import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
 import { rangeLimits } from "./profile.js";
-import { byRms, hasSite, weightGradientsOf } from "./second-moments.js";
+import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import { LOSS_SCALED_ROLES, lossScaleFactor, overflowAtRiskThreshold, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -311,7 +311,8 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const lossScale = scales[0] as AppliedLossScale;
   const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
   const training = trainingSites(spec, prediction);
-  const weightGradients = weightGradientsOf(prediction);
+  // only Adam's epsilon count reads them: as its states see them, clipped
+  const weightGradients = clippedWeightGradients(weightGradientsOf(prediction), spec.training.optimizer.clipNorm);
   const contexts = hazardContexts(spec, settings, thresholds, weightGradients);
   const hazards: HazardCheck[] = [];
   for (let i = 0; i < prediction.hazards.length; i++) {
@@ -796,7 +797,8 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
     // named after the smallest gradient, whose second moments are the likeliest to flush; the second moment is judged
     // there, while ε's count of zero second moments sums over every weight gradient (src/risk/second-moments.ts) and,
     // where it has zeros to count, names the tensor contributing most instead (src/risk/hazards.ts)
-    const pick = byRms(weightGradients, "smallest");
+    // the gradients the states see: clipped where clip-norm clips (src/risk/second-moments.ts)
+    const pick = byRms(clippedWeightGradients(weightGradients, optimizer.clipNorm), "smallest");
     const layer = pick?.tensor.layer ?? "optimizer";
     const input = pick?.profile ?? constantProfile(0);
     if (!hasSite(prediction.hazards, "optimizer-constant")) {

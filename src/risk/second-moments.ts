@@ -5,7 +5,7 @@
  * problem gets one severity. Not part of the public API.
  */
 import type { HazardSite, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { fractionBelow, nonzeroElements } from "./profile.js";
+import { fractionBelow, nonzeroElements, scaleProfile } from "./profile.js";
 import { FORMATS, roundTo } from "../formats/index.js";
 import type { RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
@@ -56,18 +56,20 @@ export function flushedSecondMomentsVerdict(
  * The gradients Adam's epsilon (`optimizer-constant`) or second moment (`optimizer-second-moment`) is judged at,
  * and the layer named: the prediction's own site of that kind when it has one (its input, and its input at the
  * end when it has one), else the weight gradient of smallest rms (start or end), whose second moments flush most
- * — the site src/risk/judge.ts adds for the training setup.
+ * — the site src/risk/judge.ts adds for the training setup — among `weightGradients` (the prediction's unless given:
+ * the clipped ones, as the optimizer's states see them).
  */
 export function stateSiteGradients(
   prediction: Prediction,
   kind: "optimizer-constant" | "optimizer-second-moment",
+  weightGradients: readonly TensorPrediction[] = weightGradientsOf(prediction),
 ): { layer: string; gradients: MagnitudeProfile[] } {
   const hazards = prediction.hazards;
   for (let i = 0; i < hazards.length; i++) {
     const site = hazards[i] as HazardSite;
     if (site.kind === kind) return { layer: site.layer, gradients: site.end === undefined ? [site.input] : [site.input, site.end.input] };
   }
-  const pick = byRms(weightGradientsOf(prediction), "smallest");
+  const pick = byRms(weightGradients, "smallest");
   return {
     layer: pick?.tensor.layer ?? "optimizer",
     gradients: [pick?.profile ?? { elements: 1, zeroFraction: 0, shape: "constant", rms: 0, log2Spread: 0 }],
@@ -149,6 +151,53 @@ export function weightGradientsOf(prediction: Prediction): TensorPrediction[] {
   for (let i = 0; i < prediction.tensors.length; i++) {
     const tensor = prediction.tensors[i] as TensorPrediction;
     if (tensor.role === "weight-gradient") out.push(tensor);
+  }
+  return out;
+}
+
+/** Where `clip-norm` scales the gradients down, at one side of the horizon: the factor (below 1) and the global norm. */
+export interface GradientClip {
+  factor: number;
+  globalNorm: number;
+}
+
+/**
+ * Clipping to a global norm c multiplies every gradient by c/‖g‖ when ‖g‖ > c (common practice), before the optimizer
+ * step: its states and its update see the clipped gradients, whatever the optimizer. ‖g‖² is predicted as the sum
+ * over the weight gradients of nonzero elements × their second moment (rms of the nonzero elements at the median
+ * draw), at each side of the horizon. Null when nothing is clipped.
+ */
+export function gradientClips(
+  clipNorm: number | undefined,
+  weightGradients: readonly TensorPrediction[],
+): Partial<Record<"start" | "end", GradientClip>> | null {
+  if (clipNorm === undefined) return null;
+  const clip: Partial<Record<"start" | "end", GradientClip>> = {};
+  for (let k = 0; k < 2; k++) {
+    const side = k === 0 ? "start" : "end";
+    let squares = 0;
+    for (let i = 0; i < weightGradients.length; i++) {
+      const p = (weightGradients[i] as TensorPrediction)[side];
+      squares += nonzeroElements(p) * p.rms * p.rms;
+    }
+    const norm = Math.sqrt(squares);
+    if (norm > clipNorm) clip[side] = { factor: clipNorm / norm, globalNorm: norm };
+  }
+  return clip.start === undefined && clip.end === undefined ? null : clip;
+}
+
+/**
+ * The weight gradients as the optimizer's states see them: multiplied by the clip factor of each side where
+ * `clip-norm` clips (the same tensors when it clips nowhere). Adam's second moments and its epsilon are judged on
+ * these, by the hazards and the optimizer check alike.
+ */
+export function clippedWeightGradients(weightGradients: readonly TensorPrediction[], clipNorm: number | undefined): readonly TensorPrediction[] {
+  const clip = gradientClips(clipNorm, weightGradients);
+  if (clip === null) return weightGradients;
+  const out: TensorPrediction[] = [];
+  for (let i = 0; i < weightGradients.length; i++) {
+    const t = weightGradients[i] as TensorPrediction;
+    out.push({ ...t, start: scaleProfile(t.start, clip.start?.factor ?? 1), end: scaleProfile(t.end, clip.end?.factor ?? 1) });
   }
   return out;
 }

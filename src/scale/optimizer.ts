@@ -7,7 +7,10 @@ import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, worseVerdict, type RangeLimits, type RiskThresholds } from "../risk/index.js";
 import {
+  clippedWeightGradients,
   flushedSecondMoments,
+  gradientClips,
+  type GradientClip,
   flushedSecondMomentsVerdict,
   hasSite,
   networkZeroSecondMoments,
@@ -17,7 +20,6 @@ import {
   weightGradientsOf,
   zeroSecondMoments,
 } from "../risk/second-moments.js";
-import { nonzeroElements } from "../risk/profile.js";
 import { notCountedSentence, plainNumber, sentenceStart, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
@@ -51,10 +53,10 @@ export interface UpdateLoss {
   /** with stochastic rounding nothing is lost in expectation; steps until rounding noise falls below 10% of the summed update */
   stochasticStepsToAverage: number;
   /**
-   * present when `clip-norm` scales SGD's or momentum's gradients down at this point: the factor clip-norm / the
-   * predicted global gradient norm (below 1), and that norm. Adam's update m/√v does not change with it
+   * present when `clip-norm` scales the gradients down at this point: the factor clip-norm / the predicted global
+   * gradient norm (below 1), and that norm. Adam's update m̂/(√v̂ + ε) keeps its size only while ε stays negligible
    */
-  clipped?: { factor: number; globalNorm: number };
+  clipped?: GradientClip;
 }
 
 /** One weight tensor and its optimizer states. */
@@ -125,8 +127,11 @@ export function stochasticStepsToAverage(updateRms: number, weightRms: number, f
   return Math.ceil((100 * (1 - q)) / q);
 }
 
-/** The update elements at one learning rate (unscaled gradients: the loss scale is removed before the optimizer). */
-function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr: number, firstStep: boolean): MagnitudeProfile {
+/**
+ * The update elements at one learning rate (unscaled gradients: the loss scale is removed before the optimizer, and
+ * clipping applied). `epsilon`: Adam's ε as the state format stores it.
+ */
+function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr: number, firstStep: boolean, epsilon: number): MagnitudeProfile {
   const beta1 = optimizer.betas[0];
   switch (optimizer.kind) {
     case "sgd":
@@ -136,9 +141,16 @@ function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr:
       return scaleProfile(gradient, (lr * (firstStep ? 1 : 1)) / Math.sqrt(1 - optimizer.momentum ** 2));
     case "adam":
     case "adamw": {
+      // the update is m̂/(√v̂ + ε) (Kingma & Ba 2015, Algorithm 1): with √v̂ ≈ σ, the gradients' rms, it keeps the size
+      // below while ε ≪ σ and shrinks by σ/(σ + ε) as ε takes over (derived), as it does for clipped gradients
+      const sigma = gradient.rms;
+      const damping = sigma > 0 ? sigma / (sigma + epsilon) : 0;
       if (firstStep) {
-        // at the first step m̂ = g and v̂ = g², so |Δ| = lr for every nonzero gradient (Kingma & Ba 2015, step size)
-        return { elements: gradient.elements, zeroFraction: gradient.zeroFraction, shape: "constant", rms: lr, log2Spread: 0 };
+        // at the first step m̂ = g and v̂ = g², so |Δ| = lr·|g|/(|g| + ε): lr for every nonzero gradient while ε is
+        // negligible (Kingma & Ba 2015, step size); where ε exceeds σ, most elements move by lr·g/ε, the gradient's shape
+        return sigma >= epsilon
+          ? { elements: gradient.elements, zeroFraction: gradient.zeroFraction, shape: "constant", rms: lr * damping, log2Spread: 0 }
+          : scaleProfile(gradient, (lr * damping) / sigma);
       }
       // settled, for noise-dominated gradients: m has variance σ²(1−β1)/(1+β1) (exponential average of
       // independent terms) and √v̂ ≈ σ, so Δ ≈ lr·sqrt((1−β1)/(1+β1))·Z (derived; SCIENCE.md §3.3 gives |Δ| ≈ lr early)
@@ -146,7 +158,7 @@ function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr:
         elements: gradient.elements,
         zeroFraction: gradient.zeroFraction,
         shape: "gaussian",
-        rms: lr * Math.sqrt((1 - beta1) / (1 + beta1)),
+        rms: lr * Math.sqrt((1 - beta1) / (1 + beta1)) * damping,
         log2Spread: 0,
       };
     }
@@ -205,13 +217,15 @@ function updateLoss(
   w: MagnitudeProfile,
   point: SchedulePointRate,
   updateFormat: Format,
-  clip: GradientClip | null,
+  clip: Clips | null,
+  epsilon: number,
 ): UpdateLoss {
   const side = point.at === "end" ? "end" : "start";
   const clipped = clip?.[side];
-  // clipping multiplies every gradient by one factor before the step; SGD's and momentum's updates follow it
+  // clipping multiplies every gradient by one factor before the step: SGD's and momentum's updates follow it, Adam's
+  // once ε is no longer negligible beside the clipped gradients
   const g = clipped !== undefined ? scaleProfile(gradient[side], clipped.factor) : gradient[side];
-  const update = updateProfile(optimizer, g, point.lr, point.firstStep);
+  const update = updateProfile(optimizer, g, point.lr, point.firstStep, epsilon);
   const lost = sums.lost(w, update);
   return {
     at: point.at,
@@ -227,30 +241,8 @@ function updateLoss(
   };
 }
 
-/** Where `clip-norm` scales the gradients down, at each side of the horizon: the factor and the global norm. */
-type GradientClip = Partial<Record<"start" | "end", { factor: number; globalNorm: number }>>;
-
-/**
- * Clipping to a global norm c multiplies every gradient by c/‖g‖ when ‖g‖ > c (common practice). ‖g‖² is predicted as
- * the sum over the weight gradients of elements × their second moment (rms of the nonzero elements at the median
- * draw, times the nonzero share), at each side of the horizon. Only SGD and momentum read it: Adam's m/√v is unchanged
- * by a common factor (Kingma & Ba 2015, the update's scale invariance). Null when nothing is clipped.
- */
-function gradientClip(optimizer: OptimizerSpec, pairs: readonly { gradient: TensorPrediction }[]): GradientClip | null {
-  const c = optimizer.clipNorm;
-  if (c === undefined || optimizer.kind === "adam" || optimizer.kind === "adamw") return null;
-  const clip: GradientClip = {};
-  for (const side of ["start", "end"] as const) {
-    let squares = 0;
-    for (let i = 0; i < pairs.length; i++) {
-      const p = (pairs[i] as { gradient: TensorPrediction }).gradient[side];
-      squares += nonzeroElements(p) * p.rms * p.rms;
-    }
-    const norm = Math.sqrt(squares);
-    if (norm > c) clip[side] = { factor: c / norm, globalNorm: norm };
-  }
-  return clip.start === undefined && clip.end === undefined ? null : clip;
-}
+/** Where `clip-norm` scales the gradients down, at each side of the horizon (src/risk/second-moments.ts). */
+type Clips = Partial<Record<"start" | "end", GradientClip>>;
 
 /**
  * Assess the optimizer of a spec under a precision plan. `plannedSteps` (the horizon's training steps), when
@@ -294,20 +286,23 @@ export function checkOptimizer(
   const decayLost =
     optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(decayRate(optimizer).lr * optimizer.weightDecay, updateFormat) : null;
   const pairs = weightPairs(prediction);
-  const clip = gradientClip(optimizer, pairs);
-  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip };
-  const tensors: WeightOptimizerCheck[] = [];
-  for (let p = 0; p < pairs.length; p++) {
-    const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
-    tensors.push(weightCheck(context, weight, gradient));
-  }
-
+  // the states and the update see the gradients after clipping, whatever the optimizer (src/risk/second-moments.ts)
+  const weightGradients = weightGradientsOf(prediction);
+  const clip = gradientClips(optimizer.clipNorm, weightGradients);
+  const stateGradients = clip === null ? weightGradients : clippedWeightGradients(weightGradients, optimizer.clipNorm);
   const epsilon = adamLike
     ? (() => {
         const stored = storedEpsilon(stateLimits, optimizer.epsilon);
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
+  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip, epsilon: epsilon?.stored ?? 0 };
+  const tensors: WeightOptimizerCheck[] = [];
+  for (let p = 0; p < pairs.length; p++) {
+    const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
+    tensors.push(weightCheck(context, weight, gradient));
+  }
+
   // zero second moments per step where a vanishing epsilon is judged: the same gradient, flush bound and count as
   // the optimizer-constant hazard (src/risk/second-moments.ts), so both give it one severity
   // — summed over every weight gradient, at the worse of start and end, unless the prediction has its own site (by
@@ -315,12 +310,12 @@ export function checkOptimizer(
   let zeros: ZeroCount = { perStep: 0, top: "" };
   if (epsilon?.vanishes) {
     if (hasSite(prediction.hazards, "optimizer-constant")) {
-      const gradients = stateSiteGradients(prediction, "optimizer-constant").gradients;
+      const gradients = stateSiteGradients(prediction, "optimizer-constant", stateGradients).gradients;
       for (let i = 0; i < gradients.length; i++) {
         zeros.perStep = Math.max(zeros.perStep, zeroSecondMoments(gradients[i] as MagnitudeProfile, stateFlushBound, optimizer.betas[1]));
       }
     } else {
-      const network = networkZeroSecondMoments(weightGradientsOf(prediction), stateFlushBound, optimizer.betas[1]);
+      const network = networkZeroSecondMoments(stateGradients, stateFlushBound, optimizer.betas[1]);
       zeros = { perStep: network.perStep, top: network.top };
     }
   }
@@ -329,7 +324,7 @@ export function checkOptimizer(
   // the optimizer-second-moment hazard (src/risk/second-moments.ts), so both give them one severity
   let secondMoments: SecondMoments | null = null;
   if (adamLike) {
-    const site = stateSiteGradients(prediction, "optimizer-second-moment");
+    const site = stateSiteGradients(prediction, "optimizer-second-moment", stateGradients);
     const binary32Bound = limitsFor(plan, "binary32").flushBound;
     let share = 0;
     let inBinary32 = 0;
@@ -375,8 +370,10 @@ interface WeightCheckContext {
   stateOverflow: number;
   adamLike: boolean;
   decayLost: number | null;
-  /** where clip-norm scales SGD's or momentum's gradients down (null: nowhere) */
-  clip: GradientClip | null;
+  /** where clip-norm scales the gradients down (null: nowhere) */
+  clip: Clips | null;
+  /** Adam's ε as the state format stores it (0 for the others) */
+  epsilon: number;
 }
 
 // One weight and its optimizer states, in a function of its own: the per-weight work that gets hot, apart from the
@@ -386,11 +383,14 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
   // the weights at the end of the horizon have grown; their ulp with them
   const w = weight.end;
   const updates: UpdateLoss[] = [];
-  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat, c.clip));
+  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat, c.clip, c.epsilon));
+  // the states hold the clipped gradients
+  const end = scaleProfile(gradient.end, c.clip?.end?.factor ?? 1);
+  const start = scaleProfile(gradient.start, c.clip?.start?.factor ?? 1);
   const firstMoment = adamLike
-    ? scaleProfile(gradient.end, 1 - optimizer.betas[0])
+    ? scaleProfile(end, 1 - optimizer.betas[0])
     : optimizer.kind === "momentum"
-      ? gradient.end
+      ? end
       : null;
   return {
     weight: weight.id,
@@ -403,11 +403,11 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
     secondMomentFlushed: adamLike
       ? {
           // (1−β2)·g² ≤ bound ⇔ |g| ≤ sqrt(bound/(1−β2)) (SCIENCE.md §3.3 / DESIGN.md §5 item 5)
-          firstStep: fractionBelow(gradient.end, Math.sqrt(stateFlushBound / (1 - optimizer.betas[1]))),
-          settled: fractionBelow(gradient.end, Math.sqrt(stateFlushBound)),
+          firstStep: fractionBelow(end, Math.sqrt(stateFlushBound / (1 - optimizer.betas[1]))),
+          settled: fractionBelow(end, Math.sqrt(stateFlushBound)),
         }
       : { firstStep: 0, settled: 0 },
-    secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(gradient.start, Math.sqrt(c.stateOverflow)) : 0,
+    secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(start, Math.sqrt(c.stateOverflow)) : 0,
   };
 }
 

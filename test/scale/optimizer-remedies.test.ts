@@ -16,7 +16,9 @@ function adam(peak: number, weightDecay = 0): OptimizerSpec {
     warmupSteps: 0,
     momentum: 0,
     betas: [0.9, 0.999],
-    epsilon: 1e-8,
+    // Adam's step is lr·|g|/(|g| + ε) (Kingma & Ba 2015, Algorithm 1): ε = 2^-100, beside gradients of 2^-16 or more,
+    // leaves it lr to the last bit of binary64, so every step below is lr; it still rounds to 0 in binary16 (IEEE 754-2019)
+    epsilon: 2 ** -100,
     weightDecay,
   };
 }

@@ -304,8 +304,12 @@ describe("checkOptimizer: gradient clipping", () => {
     expect(checkOptimizer(clipTo(20), noMaster, net).tensors[0]!.updates[0]).toEqual(free.tensors[0]!.updates[0]);
   });
 
-  it("Adam's update m/√v is unchanged by a common factor (Kingma & Ba 2015): clipping changes nothing there", () => {
-    const free = checkOptimizer(clipTo(undefined, "adam"), noMaster, net);
-    expect(checkOptimizer(clipTo(0.1, "adam"), noMaster, net).tensors).toEqual(free.tensors);
+  it("Adam's update m̂/(√v̂ + ε) keeps its size under a common factor while ε is negligible (Kingma & Ba 2015, Algorithm 1): clipped to 1e-3, ε = 1e-8 moves it by 1e-5", () => {
+    const free = checkOptimizer(clipTo(undefined, "adam"), noMaster, net).tensors[0]!.updates[0]!;
+    const clipped = checkOptimizer(clipTo(0.1, "adam"), noMaster, net).tensors[0]!.updates[0]!;
+    expect(clipped.clipped?.factor).toBeCloseTo(0.01, 12);
+    // lr·1e-3/(1e-3 + 1e-8) against lr·0.1/(0.1 + 1e-8): a relative change of about 1e-5 (derived)
+    expect(Math.abs(clipped.updateRms / free.updateRms - 1)).toBeLessThan(1.1e-5);
+    expect(clipped.planned).toBe(free.planned);
   });
 });
