@@ -66,7 +66,8 @@ export function renderDecisions(result: CheckAnswer, width: number, style: Style
     const named = optimizer.reportedAsHazards.map((kind) => HAZARD_WORDS[kind]).join(" and ");
     out += wrap(`the states in ${optimizer.stateFormat}: see ${named} under Operation hazards.`, width, "  - ", "    ");
   }
-  optimizer.remedies.forEach((remedy, i) => (out += wrap(`remedy: ${remedy}`, width, `  ${i + 1}. `, "     ")));
+  // a remedy that would not work says so in place of the label, as the loss scale's remedies do
+  optimizer.remedies.forEach((remedy, i) => (out += wrap(remedy.startsWith("does not work: ") ? remedy : `remedy: ${remedy}`, width, `  ${i + 1}. `, "     ")));
   return out;
 }
 

@@ -56,7 +56,10 @@ export interface UpdateLoss {
    * present when `clip-norm` scales the gradients down at this point: the factor clip-norm / the predicted global
    * gradient norm (below 1), and that norm. Adam's update m̂/(√v̂ + ε) keeps its size only while ε stays negligible
    */
-  clipped?: GradientClip;
+  clipped?: GradientClip & {
+    /** the share of the update's squared norm lost under the plan without the clip */
+    plannedUnclipped: number;
+  };
 }
 
 /** One weight tensor and its optimizer states. */
@@ -227,7 +230,7 @@ function updateLoss(
   const g = clipped !== undefined ? scaleProfile(gradient[side], clipped.factor) : gradient[side];
   const update = updateProfile(optimizer, g, point.lr, point.firstStep, epsilon);
   const lost = sums.lost(w, update);
-  return {
+  const loss: UpdateLoss = {
     at: point.at,
     learningRate: point.lr,
     updateRms: update.rms,
@@ -237,8 +240,13 @@ function updateLoss(
     withBinary32Master: lost[1] as number,
     compensated: lost[3] as number,
     stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
-    ...(clipped !== undefined ? { clipped } : {}),
   };
+  // the same update without the clip: what raising clip-norm would keep
+  if (clipped !== undefined) {
+    const plannedUnclipped = sums.lost(w, updateProfile(optimizer, gradient[side], point.lr, point.firstStep, epsilon))[2] as number;
+    loss.clipped = { ...clipped, plannedUnclipped };
+  }
+  return loss;
 }
 
 /** Where `clip-norm` scales the gradients down, at each side of the horizon (src/risk/second-moments.ts). */
@@ -333,15 +341,23 @@ export function checkOptimizer(
       share = Math.max(share, flushedSecondMoments(gradient, stateFlushBound, optimizer.betas[1]).share);
       inBinary32 = Math.max(inBinary32, flushedSecondMoments(gradient, binary32Bound, optimizer.betas[1]).share);
     }
+    // the share the same site would flush without the clip: what raising clip-norm would keep
+    let unclipped: number | null = null;
+    if (clip !== null) {
+      unclipped = 0;
+      const free = stateSiteGradients(prediction, "optimizer-second-moment").gradients;
+      for (let i = 0; i < free.length; i++) unclipped = Math.max(unclipped, flushedSecondMoments(free[i] as MagnitudeProfile, stateFlushBound, optimizer.betas[1]).share);
+    }
     secondMoments = {
       layer: site.layer,
       share,
       inBinary32: binary32Bound < stateFlushBound ? inBinary32 : null,
+      unclipped,
       verdict: flushedSecondMomentsVerdict(share, thresholds).verdict,
     };
   }
 
-  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, stateLimits, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards, judged);
+  return summarise(optimizer, plan, tensors, epsilon, zeros, secondMoments, { weightFormat, stateFormat, stateSmallest: stateLimits.smallest, stateLimits, updateFormat, binary32, compensatedFormat }, plannedSteps, hazards, judged, clip);
 }
 
 // Zero second moments per step where a vanishing epsilon is judged, and the weight gradient giving most ("" when
@@ -357,6 +373,8 @@ interface SecondMoments {
   layer: string;
   share: number;
   inBinary32: number | null;
+  /** the share without the clip (null when clip-norm clips nowhere) */
+  unclipped: number | null;
   verdict: OptimizerVerdict;
 }
 
@@ -476,10 +494,13 @@ function summarise(
   plannedSteps: number | undefined,
   hazards: readonly OptimizerStateHazard[],
   judged: readonly FormatName[] | undefined,
+  clip: Clips | null,
 ): OptimizerCheck {
   const { worst, worstPeak, decay } = worstFindings(tensors);
   const reasons: string[] = [];
   const remedies: string[] = [];
+  // remedies that would not work within the horizon, said so and told after the others, as the loss scale's are
+  const notWorking: string[] = [];
   const reportedAsHazards: OptimizerStateHazard[] = [];
   // a state finding the operation hazards tell is named there once, not again here
   const tell = (kind: OptimizerStateHazard, reason: string) => {
@@ -498,6 +519,9 @@ function summarise(
   // a share short of all that would round to "100%" reads as certainty: "more than 99.9%" (common practice)
   const digits = (x: number) => tinyShare(x) ?? `${(100 * x).toPrecision(x < 0.001 ? 1 : 3)}%`;
   const pct = (x: number) => (x < 1 && digits(x) === "100%" ? "more than 99.9%" : digits(x));
+  // a remedy must lose visibly less than the plan, at three digits: never "100% lost instead of 100%", nor
+  // "more than 99.9% lost instead of 100%"
+  const less = (share: number, planned: number) => share < planned && digits(share) !== digits(planned);
   const { weightFormat, stateFormat, updateFormat, binary32 } = formats;
   const master = plan.masterWeights !== "none";
   const into = master ? `the ${updateFormat.name} master copy` : `the stored ${weightFormat.name} weights`;
@@ -508,9 +532,6 @@ function summarise(
    * binary32 master copy only when binary32 is more precise than the format receiving the update.
    */
   function updateRemedies(u: UpdateLoss | null, weight: string, decayLoss: { ratio: number; lost: number } | null): string[] {
-    // a remedy must lose visibly less than the plan, at three digits: never "100% lost instead of 100%", nor
-    // "more than 99.9% lost instead of 100%"
-    const less = (share: number, planned: number) => share < planned && digits(share) !== digits(planned);
     // what a remedy does to each finding: a smaller share, or the same one still lost
     const effect = (updates: number, decaySteps: number) =>
       [
@@ -534,7 +555,8 @@ function summarise(
       const updates = u?.withBinary32Master ?? 0;
       const decaySteps = decayLoss === null ? 0 : decoupledDecayLost(decayLoss.ratio, binary32);
       if (better(updates, decaySteps)) {
-        const what = master ? `a binary32 master copy instead of ${updateFormat.name}` : "keep a binary32 master copy of the weights";
+        // the plan's key, so that the remedy can be checked again
+        const what = `${master ? `a binary32 master copy instead of ${updateFormat.name}` : "keep a binary32 master copy of the weights"} (master-weights: binary32 in the plan)`;
         found.push(`${what}: ${effect(updates, decaySteps)} (+${binary32.bytes - (master ? updateFormat.bytes : 0)} bytes per parameter)`);
       }
     }
@@ -556,15 +578,17 @@ function summarise(
     const steps = u !== null ? u.stochasticStepsToAverage : stochasticStepsToAverage(decayLoss!.ratio, 1, updateFormat);
     // a typical update of an ulp or more needs no averaging: only the noise of smaller ones would be worth a count
     const count = (n: number) => (n < 1e6 ? `${n}` : n.toExponential(2).replace("e+", "e"));
+    // noise that averages out only after the horizon's steps leaves the run with it: the remedy does not work there
+    const late = steps > 1 && plannedSteps !== undefined && steps > plannedSteps;
     const noise =
       steps <= 1
         ? ""
-        : plannedSteps !== undefined && steps > plannedSteps
-          ? `, but the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% only after about ${count(steps)} steps, more than the ${count(plannedSteps)} planned`
+        : late
+          ? `, but the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% only after about ${count(steps)} steps, more than the ${count(plannedSteps as number)} planned`
           : `; the rounding noise of ${u !== null ? weight : "the decay steps"} averages below 10% after about ${count(steps)} steps`;
-    found.push(
-      `round the weight update stochastically${target}: nothing lost in expectation${u !== null && decayLoss !== null ? ", weight decay steps included" : ""}${noise} (no extra memory)`,
-    );
+    const stochastic = `round the weight update stochastically${target}: nothing lost in expectation${u !== null && decayLoss !== null ? ", weight decay steps included" : ""}${noise} (no extra memory)`;
+    if (late) notWorking.push(`does not work: ${stochastic}`);
+    else found.push(stochastic);
     if (kahan !== null && !kahanFirst) found.push(kahan);
     return found;
   }
@@ -606,7 +630,7 @@ function summarise(
       // Adam keeps two states per parameter (first and second moments; Kingma & Ba 2015)
       const extra = 2 * (binary32.bytes - stateFormat.bytes);
       remedies.push(
-        `hold the optimizer states in binary32 instead of ${stateFormat.name}: ${pct(inBinary32)} of the second moments flush at the first step instead of ${pct(share)} (+${extra} bytes per parameter for the two states)`,
+        `hold the optimizer states in binary32 instead of ${stateFormat.name} (optimizer-states: binary32 in the plan): ${pct(inBinary32)} of the second moments flush at the first step instead of ${pct(share)} (+${extra} bytes per parameter for the two states)`,
       );
     }
   }
@@ -617,9 +641,30 @@ function summarise(
         ? `about ${plainNumber(zeros.perStep)} second moments are 0 per step${zeros.top !== "" ? ` (most in ${zeros.top})` : ""}, so the update divides by zero there.`
         : "where a second moment is also 0 the update divides by zero.";
     tell("optimizer-constant", `epsilon ${plainNumber(epsilon.value)} rounds to 0 in ${stateFormat.name}; ${where}${uncounted}`);
-    const raiseTo = `raise epsilon to at least ${epsilonFloor(formats.stateSmallest, (x) => storedEpsilon(formats.stateLimits, x) !== 0)}`;
+    const floor = epsilonFloor(formats.stateSmallest, (x) => storedEpsilon(formats.stateLimits, x) !== 0);
+    // with the spec's key and the printed value, so that the remedy can be checked again
+    const raiseTo = `raise epsilon to at least ${floor.replace(/\)$/, `; training.optimizer.epsilon: ${floor.slice(0, floor.indexOf(" "))})`)}`;
     remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
   }
+  // when the clip is what makes updates or second moments small enough to lose, raising it is the first remedy: the
+  // predicted global norm, rounded up at two digits, and what the plan keeps without the clip
+  if (clip !== null) {
+    const effects: string[] = [];
+    const unclippedUpdates = lostUpdate?.clipped?.plannedUnclipped;
+    if (lostUpdate !== null && unclippedUpdates !== undefined && less(unclippedUpdates, lostUpdate.planned)) {
+      effects.push(`${pct(unclippedUpdates)} of the update's squared norm lost instead of ${pct(lostUpdate.planned)}`);
+    }
+    if (secondMoments !== null && secondMoments.verdict !== "fits" && secondMoments.unclipped !== null && less(secondMoments.unclipped, secondMoments.share)) {
+      effects.push(`${pct(secondMoments.unclipped)} of the second moments flush at the first step instead of ${pct(secondMoments.share)}`);
+    }
+    if (effects.length > 0) {
+      const norm = Math.max(clip.start?.globalNorm ?? 0, clip.end?.globalNorm ?? 0);
+      remedies.unshift(
+        `raise clip-norm above the predicted global gradient norm of ${plainNumber(norm)} (training.optimizer.clip-norm: ${plainNumber(roundUpTwoDigits(norm))}), so that it no longer scales the gradients down: ${effects.join("; ")} (no extra memory)`,
+      );
+    }
+  }
+  remedies.push(...notWorking);
   return {
     kind: optimizer.kind,
     updateFormat: formats.updateFormat.name,
@@ -649,6 +694,14 @@ export function epsilonFloor(smallest: number, keeps: (x: number) => boolean): s
   let up = Math.ceil(smallest / digits) * digits;
   while (!keeps(up) || up < smallest) up += digits;
   return `${compactExponent(up.toExponential(2))} (just above ${power})`;
+}
+
+// The smallest number of two significant digits above x (28.7 → 29, 4.81e17 → 4.9e17).
+function roundUpTwoDigits(x: number): number {
+  const step = 10 ** (Math.floor(Math.log10(x)) - 1);
+  let up = Number((Math.ceil(x / step) * step).toPrecision(2));
+  if (!(up > x)) up = Number((up + step).toPrecision(2));
+  return up;
 }
 
 // "5.96e-8", as the other figures are written (no "+", no leading zeros in the exponent)

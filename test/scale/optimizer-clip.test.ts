@@ -125,3 +125,59 @@ layers:
     expect(clipped.optimizer.verdict).toBe("fails");
   });
 });
+
+describe("checkOptimizer: a clip that causes the finding is named in the first remedy, with its key", () => {
+  const sgd = (clipNorm: number): OptimizerSpec => ({ ...adam(clipNorm), kind: "sgd", learningRate: { peak: 1e-2, end: 1e-2 } });
+
+  it("SGD: clip-norm 0.1 against a global norm of 10 makes updates of 1e-2·0.1·0.01 = 1e-5, below half an ulp of 1.0 in binary16 (2^-11, IEEE 754-2019 p = 11); unclipped they are 1e-3 and kept", () => {
+    const noMaster = { ...states32, masterWeights: "none" as const };
+    const result = checkOptimizer(sgd(0.1), noMaster, net, 20000);
+    expect(result.tensors[0]!.updates[0]!.clipped?.plannedUnclipped).toBe(0);
+    expect(result.remedies[0]).toBe(
+      "raise clip-norm above the predicted global gradient norm of 10 (training.optimizer.clip-norm: 11), so that it no longer scales the gradients down: 0% of the update's squared norm lost instead of 100% (no extra memory)",
+    );
+  });
+
+  it("Adam: clip-norm 1e-30 flushes the binary32 second moments; without it (1 − β2)·0.01 = 1e-5 is a normal binary32 number (IEEE 754-2019 §3.6), and the update lr is kept in the master copy", () => {
+    const result = checkOptimizer(adam(1e-30), states32, net, 20000);
+    expect(result.remedies[0]).toBe(
+      "raise clip-norm above the predicted global gradient norm of 10 (training.optimizer.clip-norm: 11), so that it no longer scales the gradients down: 0% of the update's squared norm lost instead of 100%; 0% of the second moments flush at the first step instead of 100% (no extra memory)",
+    );
+  });
+
+  it("a clip that leaves nothing lost is not proposed to be raised", () => {
+    expect(checkOptimizer(adam(0.1), states32, net, 20000).remedies).toEqual([]);
+  });
+});
+
+describe("the Optimizer section of the text report: a remedy past the horizon reads 'does not work', as the loss scale's do", () => {
+  it("SGD clipped to 1e-30 in a 20000-step run: raising the clip works, stochastic rounding does not", async () => {
+    const { renderCheckText } = await import("../../src/report/check-text.js");
+    const parsed = parseSpec(
+      `name: tiny
+input: { features: 64 }
+training:
+  batch: 32
+  loss: { kind: cross-entropy, classes: 10 }
+  optimizer: { kind: sgd, learning-rate: { peak: 1.0e-2 }, clip-norm: 1.0e-30 }
+  horizon: { steps: 20000 }
+precision:
+  activations: binary16
+  weights: binary16
+  gradients: binary16
+  optimizer-states: binary32
+  master-weights: binary32
+  accumulate: binary32
+layers:
+  - type: dense
+    width: 10
+`,
+      "tiny.yaml",
+    );
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const text = renderCheckText(check(parsed.spec), { width: 1000 });
+    const lines = text.slice(text.indexOf("Optimizer sgd")).split("\n");
+    expect(lines.find((l) => l.startsWith("  1. "))).toMatch(/^ {2}1\. remedy: raise clip-norm above the predicted global gradient norm of [\d.e-]+ \(training\.optimizer\.clip-norm: [\d.e-]+\)/);
+    expect(lines.find((l) => l.startsWith("  2. "))).toMatch(/^ {2}2\. does not work: round the weight update stochastically into the binary32 master copy: .* more than the 20000 planned/);
+  });
+});

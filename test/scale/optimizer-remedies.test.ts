@@ -104,12 +104,18 @@ describe("checkOptimizer remedies when the plan already keeps a binary32 master 
     expect(tiny.remedies[0]).toMatch(/^round the weight update stochastically into the binary32 master copy: nothing lost in expectation; the rounding noise of dense-0\/weight averages below 10% after about 1\.34e10 steps \(no extra memory\)$/);
   });
 
-  it("sets the steps stochastic rounding needs against the planned training steps", () => {
-    // the same 1.34e10 steps as above (q = 2^-27): more than 20000 planned steps, so the sentence says so
+  it("sets the steps stochastic rounding needs against the planned training steps: past the horizon it does not work", () => {
+    // the same 1.34e10 steps as above (q = 2^-27): more than 20000 planned steps, so the remedy says it does not work
+    // there, as the loss scale's remedies do
     const short = checkOptimizer(adam(2 ** -50), plan("binary16", "binary32"), prediction(), 20000);
     expect(short.remedies).toEqual([
-      "round the weight update stochastically into the binary32 master copy: nothing lost in expectation, but the rounding noise of dense-0/weight averages below 10% only after about 1.34e10 steps, more than the 20000 planned (no extra memory)",
+      "does not work: round the weight update stochastically into the binary32 master copy: nothing lost in expectation, but the rounding noise of dense-0/weight averages below 10% only after about 1.34e10 steps, more than the 20000 planned (no extra memory)",
     ]);
+    // told after the remedies that work: into a bfloat16 master copy lr 2^-20 needs 100·(2^13 − 1) = 819100 steps
+    // (q = 2^-20 / 2^-7 = 2^-13), more than 20000; a binary32 master copy keeps it (half an ulp 2^-24)
+    const ordered = checkOptimizer(adam(2 ** -20), plan("binary16", "bfloat16"), prediction(), 20000).remedies;
+    expect(ordered[0]).toMatch(/^a binary32 master copy instead of bfloat16 \(master-weights: binary32 in the plan\): 0% /);
+    expect(ordered.at(-1)).toMatch(/^does not work: round the weight update stochastically into the bfloat16 master copy: .* after about 819100 steps, more than the 20000 planned/);
     // 12700 steps (q = 2^-7) fit in 20000 planned steps: the plain sentence
     const fits = checkOptimizer(adam(2 ** -30), plan("binary16", "binary32"), prediction(), 20000);
     expect(fits.remedies.some((r) => r.endsWith("averages below 10% after about 12700 steps (no extra memory)"))).toBe(true);
@@ -134,7 +140,7 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
     );
     expect(result.remedies).toEqual([
       // bfloat16 takes 2 bytes, binary32 4: 2 more per parameter
-      "a binary32 master copy instead of bfloat16: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)",
+      "a binary32 master copy instead of bfloat16 (master-weights: binary32 in the plan): 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)",
       "compensated (Kahan) summation into the bfloat16 master copy: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter for the compensation buffer)",
       // q = 2^-12 / 2^-7 = 2^-5: 100·31 = 3100 steps (binomial counting; Gupta et al. 2015 for the rounding)
       "round the weight update stochastically into the bfloat16 master copy: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 3100 steps (no extra memory)",
@@ -144,7 +150,7 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
   it("a binary16 master copy of e4m3 weights: a binary32 one instead", () => {
     // binary16 p = 11 (IEEE 754-2019): half an ulp of 1.0 is 2^-11; lr 2^-14 is lost, kept in binary32
     const result = checkOptimizer(adam(2 ** -14), plan("e4m3", "binary16"), prediction());
-    expect(result.remedies[0]).toBe("a binary32 master copy instead of binary16: 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)");
+    expect(result.remedies[0]).toBe("a binary32 master copy instead of binary16 (master-weights: binary32 in the plan): 0% of the update's squared norm lost instead of 100% (+2 bytes per parameter)");
     // q = 2^-14 / 2^-10 = 1/16: 100·15 = 1500 steps
     expect(result.remedies).toContain(
       "round the weight update stochastically into the binary16 master copy: nothing lost in expectation; the rounding noise of dense-0/weight averages below 10% after about 1500 steps (no extra memory)",
@@ -153,7 +159,7 @@ describe("checkOptimizer remedies when the master copy is narrower than binary32
 
   it("no master copy of binary16 weights: keep a binary32 one", () => {
     const result = checkOptimizer(adam(2 ** -14), plan("binary16", "none"), prediction());
-    expect(result.remedies[0]).toBe("keep a binary32 master copy of the weights: 0% of the update's squared norm lost instead of 100% (+4 bytes per parameter)");
+    expect(result.remedies[0]).toBe("keep a binary32 master copy of the weights (master-weights: binary32 in the plan): 0% of the update's squared norm lost instead of 100% (+4 bytes per parameter)");
   });
 });
 
@@ -182,7 +188,7 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
       "weight decay steps (learning rate × decay = 6.1e-5 of each weight) are lost for 100% of the weights in binary16 at the end learning rate.",
     ]);
     expect(result.remedies).toEqual([
-      "keep a binary32 master copy of the weights: weight decay steps lost for 0% of the weights instead of 100% (+4 bytes per parameter)",
+      "keep a binary32 master copy of the weights (master-weights: binary32 in the plan): weight decay steps lost for 0% of the weights instead of 100% (+4 bytes per parameter)",
       // compensated binary16 carries about 22 bits: 2^-14 is kept (Kahan 1965)
       "compensated (Kahan) summation into the stored binary16 weights: weight decay steps lost for 0% of the weights instead of 100% (+2 bytes per parameter for the compensation buffer)",
       // q = 2^-14 / 2^-10 = 1/16 for a weight of 1.0: 1500 steps
@@ -196,10 +202,10 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
     const result = checkOptimizer(adam(1e-3), plan("binary16", "binary32", "binary16"), prediction(1e-3));
     expect(result.remedies).toEqual([
       // Adam keeps two states per parameter (Kingma & Ba 2015): 2 × (4 − 2) bytes more
-      "hold the optimizer states in binary32 instead of binary16: 0% of the second moments flush at the first step instead of 100% (+4 bytes per parameter for the two states)",
+      "hold the optimizer states in binary32 instead of binary16 (optimizer-states: binary32 in the plan): 0% of the second moments flush at the first step instead of 100% (+4 bytes per parameter for the two states)",
       // 2^-24 = 5.9604644775390625e-8 is binary16's smallest subnormal (IEEE 754-2019 §3.6); printed to nearest, as
       // 5.96e-8 rounds to it (the old rule printed 5.97e-8, rounded up though 5.96e-8 is already enough)
-      "compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24)",
+      "compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24; training.optimizer.epsilon: 5.96e-8)",
     ]);
     // the printed value is itself enough: round to nearest (IEEE 754-2019 §4.3.1) takes it to 2^-24, not to 0
     expect(roundTo(getFormat("binary16"), 5.96e-8)).toBe(2 ** -24);
@@ -208,7 +214,7 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
   it("with subnormals flushed, the epsilon to raise to is binary16's smallest normal, rounded up", () => {
     const result = checkOptimizer(adam(1e-3), plan("binary16", "binary32", "binary16", true), prediction());
     // binary16's smallest normal is 2^-14 = 6.1035e-5 (IEEE 754-2019); 6.10e-5 would flush, 6.11e-5 does not
-    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 6.11e-5 (just above 2^-14)");
+    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 6.11e-5 (just above 2^-14; training.optimizer.epsilon: 6.11e-5)");
     expect(roundTo(getFormat("binary16"), 6.11e-5, { flushSubnormals: true })).toBeGreaterThan(0);
     expect(roundTo(getFormat("binary16"), 6.1e-5, { flushSubnormals: true })).toBe(0);
   });

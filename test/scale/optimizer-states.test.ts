@@ -180,7 +180,7 @@ describe("checkOptimizer: flushed second moments graded as their hazard grades t
     // under the sentences' display floor of 1e-8 (src/risk/words.ts), so it reads "less than 1e-6%"
     expect(early.remedies).toHaveLength(1);
     expect(early.remedies[0]).toMatch(
-      /^hold the optimizer states in binary32 instead of binary16: less than 1e-6% of the second moments flush at the first step instead of 20\.\d% \(\+4 bytes per parameter for the two states\)$/,
+      /^hold the optimizer states in binary32 instead of binary16 \(optimizer-states: binary32 in the plan\): less than 1e-6% of the second moments flush at the first step instead of 20\.\d% \(\+4 bytes per parameter for the two states\)$/,
     );
     expect(checkOptimizer(kept, states, gradients("0.5%", "20%")).verdict).toBe("fails");
   });
