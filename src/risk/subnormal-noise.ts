@@ -7,7 +7,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
 import { elementLaw, isConstantLike, isEmpty, ruleOverDraws } from "./laws.js";
-import { energyBelow } from "./profile.js";
+import { energyBelow, fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
 
 /**
@@ -106,7 +106,7 @@ function memoised(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBou
     }
   }
   if (same) return VALUES[slot] as number;
-  const value = integral(profile, limits);
+  const value = tilted(profile, limits);
   KEYS.set(PROBE, at);
   VALUES[slot] = value;
   return value;
@@ -122,6 +122,22 @@ export function integral(profile: MagnitudeProfile, limits: Pick<RangeLimits, "f
   if (isConstantLike(profile)) return constantNoise(profile.rms, profile.log2Spread, low, high, noise);
   const law = elementLaw(profile);
   return ruleOverDraws(profile.rms, profile.log2Spread, (r) => (Math.max(0, law.below(r, high) - law.below(r, low)) * noise) / (r * r));
+}
+
+/**
+ * {@link integral} by a change of measure: with r = rms·2^(S·z), the weight 1/r² is rms^−2·e^(−c·z), c = 2·S·ln 2, and
+ * E[e^(−c·z)·F(z)] = e^(c²/2)·E[F(z − c)] (complete the square), so the draw integral of P(band | r)/r² is e^(c²/2)/rms²
+ * times the band's share for the scale moved to rms·2^(−S·c): two shares {@link fractionBelow} gives by its closed forms
+ * and tables, not a quadrature of their own (exact in the draw; within the shares' accuracy, 1e-6).
+ */
+function tilted(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
+  const spread = profile.log2Spread;
+  if (isConstantLike(profile) || !(spread > 0)) return integral(profile, limits);
+  const delta = limits.smallest;
+  const c = 2 * spread * LN2;
+  const moved: MagnitudeProfile = { ...profile, rms: profile.rms * 2 ** (-spread * c) };
+  const mass = fractionBelow(moved, limits.minNormal - delta / 2) - fractionBelow(moved, limits.flushBound);
+  return Math.min(1, Math.max(0, ((delta * delta) / 12 / (profile.rms * profile.rms)) * Math.exp((c * c) / 2) * mass));
 }
 
 // Every element equals the drawn scale r = rms·2^(S·z), z ~ N(0, 1): the share is noise/r² for the draws whose r lies in
