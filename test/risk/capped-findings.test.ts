@@ -7,33 +7,10 @@
 import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
-import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
-import { DEFAULT_THRESHOLDS, evaluateHazard, type Finding, type HazardContext } from "../../src/risk/index.js";
+import { DEFAULT_THRESHOLDS, evaluateHazard, type Finding } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { BINARY16, BINARY32 } from "./limits.js";
-
-function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
-  return { elements: 1, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
-}
-
-function context(partial: Partial<HazardContext> = {}): HazardContext {
-  return {
-    activations: BINARY16,
-    gradients: BINARY16,
-    optimizerStates: BINARY32,
-    accumulate: BINARY32,
-    lossScale: 1,
-    beta2: 0.999,
-    workerGradients: "sum",
-    workers: 1,
-    thresholds: DEFAULT_THRESHOLDS,
-    ...partial,
-  };
-}
-
-function site(partial: Partial<HazardSite> & Pick<HazardSite, "kind">): HazardSite {
-  return { layer: "layer", input: profile({}), terms: 1, guarded: false, detail: "test site", ...partial };
-}
+import { context, profile, site } from "./hazard-sites.js";
 
 function only(findings: readonly Finding[], kind: Finding["kind"]): Finding {
   const found = findings.filter((f) => f.kind === kind);

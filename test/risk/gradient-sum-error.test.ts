@@ -9,30 +9,16 @@ import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
 import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
-import { DEFAULT_THRESHOLDS, evaluateHazard, type CheckResult, type HazardContext } from "../../src/risk/index.js";
+import { evaluateHazard, type CheckResult, type HazardContext } from "../../src/risk/index.js";
 import { scaledFindings } from "../../src/scale/pick.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
-import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+import { BFLOAT16_FTZ, BINARY32 } from "./limits.js";
+import { context as baseContext, profile as baseProfile } from "./hazard-sites.js";
 
-function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
-  return { elements: 4096, zeroFraction: 0, shape: "gaussian", rms: 1e-3, log2Spread: 0, ...partial };
-}
-
-function context(partial: Partial<HazardContext> = {}): HazardContext {
-  return {
-    activations: BINARY16,
-    gradients: BINARY16,
-    optimizerStates: BINARY32,
-    accumulate: BINARY32,
-    lossScale: 1,
-    beta2: 0.999,
-    workerGradients: "average",
-    workers: 4,
-    thresholds: DEFAULT_THRESHOLDS,
-    ...partial,
-  };
-}
+// four workers averaging their gradients, inputs of 4096 elements at rms 1e-3
+const profile = (partial: Partial<MagnitudeProfile>): MagnitudeProfile => baseProfile({ elements: 4096, rms: 1e-3, ...partial });
+const context = (partial: Partial<HazardContext> = {}): HazardContext => baseContext({ workerGradients: "average", workers: 4, ...partial });
 
 function sum(terms: number): HazardSite {
   return { kind: "gradient-sum", layer: "reader", tensor: "reader/weight-gradient", input: profile({}), terms, guarded: false, detail: "test site" };

@@ -3,32 +3,10 @@ import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/m
 import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, rangeLimits, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
 import { getFormat } from "../../src/formats/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING } from "./limits.js";
+import { context, profile, site } from "./hazard-sites.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { dense, features, he, makeSpec } from "../magnitude/build-spec.js";
-
-function profile(partial: Partial<MagnitudeProfile>): MagnitudeProfile {
-  return { elements: 1, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0, ...partial };
-}
-
-function context(partial: Partial<HazardContext> = {}): HazardContext {
-  return {
-    activations: BINARY16,
-    gradients: BINARY16,
-    optimizerStates: BINARY32,
-    accumulate: BINARY32,
-    lossScale: 1,
-    beta2: 0.999,
-    workerGradients: "sum",
-    workers: 1,
-    thresholds: DEFAULT_THRESHOLDS,
-    ...partial,
-  };
-}
-
-function site(partial: Partial<HazardSite> & Pick<HazardSite, "kind">): HazardSite {
-  return { layer: "layer", input: profile({}), terms: 1, guarded: false, detail: "test site", ...partial };
-}
 
 describe("softmax exp overflow", () => {
   // exp(x) rounds to infinity in binary16 from x = ln 65520 = 11.090110719 (SCIENCE.md §4)
