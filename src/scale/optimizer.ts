@@ -130,6 +130,9 @@ export function stochasticStepsToAverage(updateRms: number, weightRms: number, f
   return Math.ceil((100 * (1 - q)) / q);
 }
 
+/** ε/σ below which Adam's damping σ/(σ + ε) is taken as 1: the update moves by less than 0.1%. */
+const EPSILON_NEGLIGIBLE = 1e-3;
+
 /**
  * The update elements at one learning rate (unscaled gradients: the loss scale is removed before the optimizer, and
  * clipping applied). `epsilon`: Adam's ε as the state format stores it.
@@ -147,7 +150,9 @@ function updateProfile(optimizer: OptimizerSpec, gradient: MagnitudeProfile, lr:
       // the update is m̂/(√v̂ + ε) (Kingma & Ba 2015, Algorithm 1): with √v̂ ≈ σ, the gradients' rms, it keeps the size
       // below while ε ≪ σ and shrinks by σ/(σ + ε) as ε takes over (derived), as it does for clipped gradients
       const sigma = gradient.rms;
-      const damping = sigma > 0 ? sigma / (sigma + epsilon) : 0;
+      // √v̂ ≈ σ is itself an estimate: a damping within 1e-3 of 1 (ε < 1e-3·σ) is left at 1, so the updates of one
+      // learning rate keep one law, and its swamping sums serve every weight (src/scale/swamping.ts)
+      const damping = !(sigma > 0) ? 0 : epsilon < EPSILON_NEGLIGIBLE * sigma ? 1 : sigma / (sigma + epsilon);
       if (firstStep) {
         // at the first step m̂ = g and v̂ = g², so |Δ| = lr·|g|/(|g| + ε): lr for every nonzero gradient while ε is
         // negligible (Kingma & Ba 2015, step size); where ε exceeds σ, most elements move by lr·g/ε, the gradient's shape
