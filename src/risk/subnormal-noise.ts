@@ -43,12 +43,15 @@ export function subnormalNoiseLimit(limits: Pick<RangeLimits, "unitRoundoff">, a
  * Δ²/(12·r²), Δ the smallest subnormal, which spaces the subnormals evenly (IEEE 754-2019 §3.3), so that each one's
  * error is uniform on ±Δ/2 (the model of {@link normalRoundingNoise}); averaged over draws as the other shares are.
  * 0 when the conversion flushes subnormals (there is no band) or the tensor is all zeros, and 0 where the noise is
- * surely under {@link NOISE_FLOOR} (see {@link noiseBound}), which settles most tensors without the draw integral.
+ * under {@link NOISE_FLOOR} (a density bound settles most tensors without computing it).
  */
 export function subnormalNoise(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
   if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return 0;
-  if (noiseBound(profile, limits) < NOISE_FLOOR) return 0;
-  return memoised(profile, limits);
+  // the density bound alone: where it does not settle the tensor, the noise itself (two shares, see tilted) costs
+  // about what the energy bound of noiseBound would
+  if (densityBound(profile, limits) < NOISE_FLOOR) return 0;
+  const noise = memoised(profile, limits);
+  return noise < NOISE_FLOOR ? 0 : noise;
 }
 
 /**
@@ -65,15 +68,18 @@ export const NOISE_FLOOR = 1e-12;
  * under a third of the energy below h.
  */
 export function noiseBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
+  const bound = densityBound(profile, limits);
+  return bound < NOISE_FLOOR ? bound : energyBelow(profile, limits.minNormal) / 3;
+}
+
+// the density part of noiseBound: Infinity for a law it does not cover
+function densityBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
   const density = profile.shape === "uniform" ? 1 / Math.sqrt(3) : profile.shape === "log-normal" || profile.shape === "constant" ? NaN : Math.sqrt(2 / Math.PI);
   // a bound under the smallest normal puts the mass above it at the bound, inside the band: no density there
   const capped = profile.bound !== undefined && profile.bound > 0 && profile.bound < limits.minNormal;
-  if (density === density && !capped) {
-    const spread = 3 * profile.log2Spread * LN2;
-    const bound = ((density * limits.minNormal * limits.smallest * limits.smallest) / (12 * profile.rms ** 3)) * Math.exp((spread * spread) / 2);
-    if (bound < NOISE_FLOOR) return bound;
-  }
-  return energyBelow(profile, limits.minNormal) / 3;
+  if (density !== density || capped) return Infinity;
+  const spread = 3 * profile.log2Spread * LN2;
+  return ((density * limits.minNormal * limits.smallest * limits.smallest) / (12 * profile.rms ** 3)) * Math.exp((spread * spread) / 2);
 }
 
 // The same profile meets the same band again and again (each loss scale a search tries, each check of a batch that
