@@ -249,7 +249,7 @@ export function noneAtRisk(count: number, noun: string): string {
 /** Rows shown without --all. */
 export const TENSOR_ROW_LIMIT = 30;
 
-/** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, overflow per step, verdict). */
+/** The tensor table (layer, role, format, rms, max, headroom, footroom, flushed, subnormal noise, overflow per step, verdict). */
 export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: TensorCheckRisk }[], style: Style = PLAIN): string {
   // a format judged at another loss scale has the tensor's numbers after its own scale
   const cells: Cell[][] = rows.map(({ tensor, risk }) => {
@@ -263,6 +263,7 @@ export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: Te
       binadesCell(risk.worst.headroom),
       binadesCell(risk.worst.footroom),
       formatProbability(risk.worst.flushedFraction),
+      formatProbability(risk.worst.subnormalNoise),
       formatProbability(risk.worst.overflowRisk),
       verdictText(risk.verdict, style),
     ];
@@ -277,6 +278,7 @@ export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: Te
       { title: "headroom", align: "right" },
       { title: "footroom", align: "right" },
       { title: "flushed", align: "right" },
+      { title: "subnormal noise", align: "right" },
       { title: "overflow/step", align: "right" },
       { title: "verdict", align: "left" },
     ],
@@ -429,7 +431,8 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
           (shown.some((row) => row.risk.scaleLog2.start !== 0 || row.risk.scaleLog2.end !== 0)
             ? ", after the per-tensor scale factor of an 8-bit format (rms and max are before it)"
             : "") +
-          "; flushed is the share of nonzero elements that round to zero.",
+          "; flushed is the share of nonzero elements that round to zero; subnormal noise the share of the squared norm " +
+          "that rounding the subnormal elements adds.",
         width,
         "  ",
         "  ",

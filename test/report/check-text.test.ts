@@ -2,6 +2,7 @@ import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
 import { describeLossScale, describePlan, HAZARD_GROUP_LIMIT, HAZARD_ROW_LIMIT, noneAtRisk, renderCheckText, renderHazards, wrap } from "../../src/report/check-text.js";
+import { formatProbability } from "../../src/report/number.js";
 import type { HazardCheck } from "../../src/risk/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -69,6 +70,22 @@ describe("the tensor table's legend", () => {
     const text = renderCheckText(check(example("transformer-encoder.yaml"), { plan: "eight-bit-trial" }), { all: true, width: 400 });
     expect(text).toContain(scaled);
     expect(renderCheckText(check(example("deep-sigmoid.yaml")), { width: 400 })).not.toContain(scaled);
+  });
+});
+
+describe("the tensor table shows what a subnormal finding judged", () => {
+  it("has a subnormal noise column holding the number the finding compared with its limit", () => {
+    // transformer-encoder's binary16 plan: one query gradient at risk by its subnormal noise alone
+    const result = check(example("transformer-encoder.yaml"), { plan: "mixed-binary16" });
+    const flagged = result.tensors.flatMap((t) => t.risks.filter((r) => r.findings.some((f) => f.kind === "subnormal-values")));
+    expect(flagged.length).toBeGreaterThan(0);
+    const text = renderCheckText(result, { width: 400 });
+    const header = text.split("\n").find((line) => line.includes("overflow/step"))!;
+    expect(header).toMatch(/flushed +subnormal noise +overflow\/step/);
+    const noise = flagged[0]!.findings.find((f) => f.kind === "subnormal-values")!.value;
+    const row = text.split("\n").find((line) => line.includes("activation-gradient:query") && line.includes("at risk"))!;
+    expect(row.split(/ {2,}/)).toContain(formatProbability(noise));
+    expect(text).toContain("subnormal noise the share of the squared norm that rounding the subnormal elements adds");
   });
 });
 
