@@ -524,13 +524,17 @@ function levelPassed(anyAbove: (level: number) => number, start: number, p: numb
 
 // Rounding error of an n-term sum in a format with unit roundoff u: about √n·u for terms of random sign
 // (probabilistic analysis, Higham & Mary 2019; from memory, unconfirmed), at most about n·u (Higham 2002,
-// Accuracy and Stability of Numerical Algorithms, §4.2; from memory, unconfirmed). Partial sums of
-// random-sign terms are close to N(0, n·r²), and by the reflection principle their running maximum passes a
-// level at most twice as often as the final sum; terms of one sign add up to about n·r.
+// Accuracy and Stability of Numerical Algorithms, §4.2; from memory, unconfirmed).
+function sumRoundingError(terms: number, unitRoundoff: number): number {
+  return Math.sqrt(terms) * unitRoundoff;
+}
+
+// Partial sums of random-sign terms are close to N(0, n·r²), and by the reflection principle their running maximum
+// passes a level at most twice as often as the final sum; terms of one sign add up to about n·r.
 function accumulation(site: HazardSite, profile: MagnitudeProfile, context: HazardContext, list: DraftList): void {
   const limits = context.accumulate;
   const terms = Math.max(1, site.terms);
-  const error = Math.sqrt(terms) * limits.unitRoundoff;
+  const error = sumRoundingError(terms, limits.unitRoundoff);
   const t = context.thresholds;
   const law = elementLaw(profile);
   const outputs = Math.max(1, nonzeroElements(profile) / terms);
@@ -634,10 +638,9 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
     putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
-  // The sum's own rounding error, judged as an accumulation is (above): held in the gradient format, as the plan names
-  // no other for it, n = terms give √n·u for terms of random sign (Higham & Mary 2019, Theorem 2.4), n·u at worst
-  // (Higham 2002, §4.2); theorem and section from memory, unconfirmed
-  putGraded(list, limits, "gradients", "relative-error", "accumulation-error", Math.sqrt(terms) * limits.unitRoundoff, null,
+  // The sum's own rounding error, judged as an accumulation is (sumRoundingError): held in the gradient format, as the
+  // plan names no other for it
+  putGraded(list, limits, "gradients", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
 }
 

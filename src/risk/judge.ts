@@ -310,9 +310,10 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   for (let i = 0; i < settings.length; i++) (settings[i] as FormatSetting).lossScale = (scales[i] as AppliedLossScale).value;
   const lossScale = scales[0] as AppliedLossScale;
   const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
-  const training = trainingSites(spec, prediction);
+  const allWeightGradients = weightGradientsOf(prediction);
   // only Adam's epsilon count reads them: as its states see them, clipped
-  const weightGradients = clippedWeightGradients(weightGradientsOf(prediction), spec.training.optimizer.clipNorm);
+  const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
+  const training = trainingSites(spec, prediction, allWeightGradients, weightGradients);
   const contexts = hazardContexts(spec, settings, thresholds, weightGradients);
   const hazards: HazardCheck[] = [];
   for (let i = 0; i < prediction.hazards.length; i++) {
@@ -369,9 +370,12 @@ export function isScaledSite(kind: HazardKind): boolean {
 export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): ScaledSubjects {
   const sites: ScaledSubjects["sites"][number][] = [];
   for (const site of prediction.hazards) if (isScaledSite(site.kind)) sites.push({ site, origin: "prediction" });
-  for (const site of trainingSites(spec, prediction)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
+  const allWeightGradients = weightGradientsOf(prediction);
+  const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
+  for (const site of trainingSites(spec, prediction, allWeightGradients, weightGradients)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
   const tensors = prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role));
-  return { spec, tensors, sites, weightGradients: weightGradientsOf(prediction), arrays: storedArrays(tensors) };
+  // as judgePrediction passes them to the hazards: clipped
+  return { spec, tensors, sites, weightGradients, arrays: storedArrays(tensors) };
 }
 
 /**
@@ -737,8 +741,13 @@ function hazardContext(
  * Operation sites that follow from the training setup rather than from a layer: the loss value, gradient sums
  * across workers and accumulation steps, and Adam's epsilon. Added when the prediction has none of the kind.
  */
-export function trainingSites(spec: NetworkSpec, prediction: Prediction): HazardSite[] {
-  const weightGradients = weightGradientsOf(prediction);
+export function trainingSites(
+  spec: NetworkSpec,
+  prediction: Prediction,
+  weightGradients: readonly TensorPrediction[] = weightGradientsOf(prediction),
+  // the gradients the optimizer's states see (clipped where clip-norm clips: src/risk/second-moments.ts)
+  stateGradients: readonly TensorPrediction[] = clippedWeightGradients(weightGradients, spec.training.optimizer.clipNorm),
+): HazardSite[] {
   const training = spec.training;
   const sites: HazardSite[] = [];
 
@@ -797,8 +806,7 @@ export function trainingSites(spec: NetworkSpec, prediction: Prediction): Hazard
     // named after the smallest gradient, whose second moments are the likeliest to flush; the second moment is judged
     // there, while ε's count of zero second moments sums over every weight gradient (src/risk/second-moments.ts) and,
     // where it has zeros to count, names the tensor contributing most instead (src/risk/hazards.ts)
-    // the gradients the states see: clipped where clip-norm clips (src/risk/second-moments.ts)
-    const pick = byRms(clippedWeightGradients(weightGradients, optimizer.clipNorm), "smallest");
+    const pick = byRms(stateGradients, "smallest");
     const layer = pick?.tensor.layer ?? "optimizer";
     const input = pick?.profile ?? constantProfile(0);
     if (!hasSite(prediction.hazards, "optimizer-constant")) {

@@ -192,7 +192,11 @@ export function gradientClips(
  * these, by the hazards and the optimizer check alike.
  */
 export function clippedWeightGradients(weightGradients: readonly TensorPrediction[], clipNorm: number | undefined): readonly TensorPrediction[] {
-  const clip = gradientClips(clipNorm, weightGradients);
+  return clippedBy(weightGradients, gradientClips(clipNorm, weightGradients));
+}
+
+/** {@link clippedWeightGradients} with the clip already worked out by {@link gradientClips}. */
+export function clippedBy(weightGradients: readonly TensorPrediction[], clip: ReturnType<typeof gradientClips>): readonly TensorPrediction[] {
   if (clip === null) return weightGradients;
   const out: TensorPrediction[] = [];
   for (let i = 0; i < weightGradients.length; i++) {

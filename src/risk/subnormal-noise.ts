@@ -7,7 +7,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
 import { elementLaw, isConstantLike, isEmpty, ruleOverDraws } from "./laws.js";
-import { energyBelow, fractionBelow } from "./profile.js";
+import { fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
 
 /**
@@ -47,9 +47,9 @@ export function subnormalNoiseLimit(limits: Pick<RangeLimits, "unitRoundoff">, a
  */
 export function subnormalNoise(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
   if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return 0;
-  // the density bound alone: where it does not settle the tensor, the noise itself (two shares, see tilted) costs
-  // about what the energy bound of noiseBound would
-  if (densityBound(profile, limits) < NOISE_FLOOR) return 0;
+  // where the bound does not settle the tensor, the noise itself (two shares, see tilted) costs about what a bound by
+  // the energy below the smallest normal would
+  if (noiseBound(profile, limits) < NOISE_FLOOR) return 0;
   const noise = memoised(profile, limits);
   return noise < NOISE_FLOOR ? 0 : noise;
 }
@@ -61,19 +61,12 @@ export function subnormalNoise(profile: MagnitudeProfile, limits: Pick<RangeLimi
 export const NOISE_FLOOR = 1e-12;
 
 /**
- * An upper bound on {@link subnormalNoise}, cheap to take. A Gaussian magnitude's density is at most √(2/π)/r (a
- * uniform one's 1/(√3·r)), so P(band | r) ≤ that times the smallest normal h, and the share per draw at most
- * c·h·Δ²/(12·r³) (c the density's factor); over draws E[r^−3] = rms^−3·e^((3·S·ln 2)²/2) (the log-normal's
- * moment). Any law: an element of the band is above Δ/2, so its Δ²/12 is under a third of its square, and the noise
- * under a third of the energy below h.
+ * An upper bound on {@link subnormalNoise}, cheap to take, or Infinity for a law it does not cover (log-normal,
+ * constant, or capped under the smallest normal). A Gaussian magnitude's density is at most √(2/π)/r (a uniform one's
+ * 1/(√3·r)), so P(band | r) ≤ that times the smallest normal h, and the share per draw at most c·h·Δ²/(12·r³) (c the
+ * density's factor); over draws E[r^−3] = rms^−3·e^((3·S·ln 2)²/2) (the log-normal's moment).
  */
 export function noiseBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
-  const bound = densityBound(profile, limits);
-  return bound < NOISE_FLOOR ? bound : energyBelow(profile, limits.minNormal) / 3;
-}
-
-// the density part of noiseBound: Infinity for a law it does not cover
-function densityBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
   const density = profile.shape === "uniform" ? 1 / Math.sqrt(3) : profile.shape === "log-normal" || profile.shape === "constant" ? NaN : Math.sqrt(2 / Math.PI);
   // a bound under the smallest normal puts the mass above it at the bound, inside the band: no density there
   const capped = profile.bound !== undefined && profile.bound > 0 && profile.bound < limits.minNormal;

@@ -7,7 +7,7 @@ import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, worseVerdict, type RangeLimits, type RiskThresholds } from "../risk/index.js";
 import {
-  clippedWeightGradients,
+  clippedBy,
   flushedSecondMoments,
   gradientClips,
   type GradientClip,
@@ -302,7 +302,7 @@ export function checkOptimizer(
   // the states and the update see the gradients after clipping, whatever the optimizer (src/risk/second-moments.ts)
   const weightGradients = weightGradientsOf(prediction);
   const clip = gradientClips(optimizer.clipNorm, weightGradients);
-  const stateGradients = clip === null ? weightGradients : clippedWeightGradients(weightGradients, optimizer.clipNorm);
+  const stateGradients = clippedBy(weightGradients, clip);
   const epsilon = adamLike
     ? (() => {
         const stored = storedEpsilon(stateLimits, optimizer.epsilon);
