@@ -23,45 +23,85 @@ export interface LossScaleCurveParts {
 }
 
 /**
- * The parts of the loss-scale curves of every gradient tensor (activation and weight gradients) held in a format,
- * for callers that keep values and bounds themselves (the window's search does): {@link lossScaleCurves} without its
- * memos.
+ * A gradient tensor's profiles in the one layout the risk functions read (riskProfile), with their extreme-draw bounds:
+ * what the curves take of a tensor whatever the format's limits, made once per answer and shared by its formats (the
+ * gradient format and bfloat16's remedy) and the dynamic-scale simulation's ends of the horizon.
  */
-export function lossScaleCurveParts(tensors: readonly TensorPrediction[], limits: RangeLimits): LossScaleCurveParts[] {
-  return tensors
-    .filter((tensor) => GRADIENT_ROLES.includes(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0))
-    .map((tensor) => {
-      // the risk functions see profiles of one layout (riskProfile), whatever fields the prediction carried
-      const same = sameDistribution(tensor.start, tensor.end);
-      const start = riskProfile(tensor.start);
-      const end = same ? start : riskProfile(tensor.end);
-      // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
-      // once the bound comes within a few binades of the rms (rough: only the search's starting point)
-      const rmsLog2 = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
-      const lowRmsLog2 = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
-      const spread = Math.max(start.log2Spread, end.log2Spread, 0);
-      const edgeGuessesLog2 = {
-        overflow: Math.floor(Math.log2(limits.overflowLevel) - rmsLog2 - 2 - 3 * spread),
-        flush: Math.ceil(Math.log2(limits.flushBound) - lowRmsLog2 + 4 + 3 * spread),
-      };
-      return new CurveParts(tensor.id, start, end, same, edgeGuessesLog2, limits);
-    });
+export interface GradientProfiles {
+  tensor: TensorPrediction;
+  start: MagnitudeProfile;
+  end: MagnitudeProfile;
+  /** true when start and end have one distribution (end is then start) */
+  same: boolean;
+  startBounds: ProfileDrawBounds;
+  endBounds: ProfileDrawBounds;
 }
 
-// One tensor's parts: each profile's extreme-draw bounds with its draws' scales taken once (ProfileDrawBounds)
+/** The {@link GradientProfiles} of every gradient tensor (activation and weight gradients) with a nonzero rms, in order. */
+export function gradientProfiles(tensors: readonly TensorPrediction[]): GradientProfiles[] {
+  const out: GradientProfiles[] = [];
+  for (const tensor of tensors) {
+    if (GRADIENT_ROLES.includes(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0)) out.push(profilesOf(tensor));
+  }
+  return out;
+}
+
+/** One tensor's {@link GradientProfiles}, whatever its role. */
+export function profilesOf(tensor: TensorPrediction): GradientProfiles {
+  // the risk functions see profiles of one layout (riskProfile), whatever fields the prediction carried
+  const same = sameDistribution(tensor.start, tensor.end);
+  const start = riskProfile(tensor.start);
+  const end = same ? start : riskProfile(tensor.end);
+  const startBounds = new ProfileDrawBounds(start);
+  return { tensor, start, end, same, startBounds, endBounds: same ? startBounds : new ProfileDrawBounds(end) };
+}
+
+/**
+ * The parts of the loss-scale curves of every gradient tensor (activation and weight gradients) held in a format,
+ * for callers that keep values and bounds themselves (the window's search does): {@link lossScaleCurves} without its
+ * memos. `profiles`, when given, are the tensors' {@link gradientProfiles}, made once for several formats.
+ */
+export function lossScaleCurveParts(
+  tensors: readonly TensorPrediction[],
+  limits: RangeLimits,
+  profiles: readonly GradientProfiles[] = gradientProfiles(tensors),
+): LossScaleCurveParts[] {
+  const overflowLog2 = Math.log2(limits.overflowLevel);
+  const flushLog2 = Math.log2(limits.flushBound);
+  return profiles.map((p) => {
+    const { start, end } = p;
+    // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
+    // once the bound comes within a few binades of the rms (rough: only the search's starting point)
+    const rmsLog2 = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
+    const lowRmsLog2 = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
+    const spread = Math.max(start.log2Spread, end.log2Spread, 0);
+    const edgeGuessesLog2 = {
+      overflow: Math.floor(overflowLog2 - rmsLog2 - 2 - 3 * spread),
+      flush: Math.ceil(flushLog2 - lowRmsLog2 + 4 + 3 * spread),
+    };
+    return new CurveParts(p, edgeGuessesLog2, limits);
+  });
+}
+
+// One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles)
 class CurveParts implements LossScaleCurveParts {
+  readonly id: string;
+  readonly start: MagnitudeProfile;
+  readonly end: MagnitudeProfile;
+  readonly same: boolean;
   private readonly startBounds: ProfileDrawBounds;
   private readonly endBounds: ProfileDrawBounds;
   constructor(
-    readonly id: string,
-    readonly start: MagnitudeProfile,
-    readonly end: MagnitudeProfile,
-    readonly same: boolean,
+    profiles: GradientProfiles,
     readonly edgeGuessesLog2: { overflow: number; flush: number },
     private readonly limits: RangeLimits,
   ) {
-    this.startBounds = new ProfileDrawBounds(start);
-    this.endBounds = same ? this.startBounds : new ProfileDrawBounds(end);
+    this.id = profiles.tensor.id;
+    this.start = profiles.start;
+    this.end = profiles.end;
+    this.same = profiles.same;
+    this.startBounds = profiles.startBounds;
+    this.endBounds = profiles.endBounds;
   }
 
   // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile against

@@ -6,7 +6,7 @@ import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
-import { lossScaleCurveParts, type LossScaleCurveParts } from "../risk/curve-parts.js";
+import { gradientProfiles, lossScaleCurveParts, profilesOf, type GradientProfiles, type LossScaleCurveParts } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
@@ -80,7 +80,11 @@ export interface LossScaleOptions {
 export function profileAt(tensor: TensorPrediction, progress: number): MagnitudeProfile {
   const from = progress <= 0 ? tensor.start : progress >= 1 ? tensor.end : undefined;
   if (from !== undefined) return riskProfile(from);
-  const { start, end } = tensor;
+  return profileBetween(tensor.start, tensor.end, progress);
+}
+
+// profileAt strictly inside the horizon, from the start and end profiles (or their riskProfile views: the same values)
+function profileBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress: number): MagnitudeProfile {
   return {
     elements: start.elements,
     zeroFraction: start.zeroFraction,
@@ -106,7 +110,9 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
-  const curves = boundedLossScaleCurves(prediction.tensors, limits);
+  // the gradients' profiles and draw bounds serve every format the answer tries and the simulation's ends
+  const profiles = gradientProfiles(prediction.tensors);
+  const curves = boundedLossScaleCurves(prediction.tensors, limits, profiles);
   // the remedies' windows are this one with tensors set aside: one search serves them all
   const windowWithout = lossScaleWindows(curves, windowOptions);
   const window = windowWithout();
@@ -130,7 +136,8 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
     const ids = new Set(curves.map((c) => c.id));
     gradients = prediction.tensors.filter((t) => ids.has(t.id));
     // the simulation fills in the other defaults of the settings itself
-    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale), {
+    const shared = sameTensors(gradients, profiles) ? profiles : undefined;
+    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale, shared), {
       steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
       seed: options.seed ?? 1,
       horizonPoints: 8,
@@ -140,7 +147,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
 
   const sentences = describe(window, format, windowOptions, requested);
   const remedies =
-    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, dynamic) : [];
+    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, dynamic, profiles) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
@@ -151,9 +158,16 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
  * equal the curves' own (test/scale/recommend-bounds.test.ts); the window's searches then integrate only the tensors
  * that come near the budget or the tolerance. Values are not memoised here: the window's search keeps them.
  */
-export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits): ScaledTensorCurves[] {
+export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits, profiles?: readonly GradientProfiles[]): ScaledTensorCurves[] {
   // the window keeps values and bounds itself: the parts without memos
-  return lossScaleCurveParts(tensors, limits).map((c) => new BoundedCurves(c, limits));
+  return lossScaleCurveParts(tensors, limits, profiles ?? gradientProfiles(tensors)).map((c) => new BoundedCurves(c, limits));
+}
+
+// whether `tensors` are the tensors of `profiles`, in order (the profiles made from them then serve them)
+function sameTensors(tensors: readonly TensorPrediction[], profiles: readonly GradientProfiles[]): boolean {
+  if (tensors.length !== profiles.length) return false;
+  for (let i = 0; i < tensors.length; i++) if (tensors[i] !== profiles[i]!.tensor) return false;
+  return true;
 }
 
 // One tensor's curves of boundedLossScaleCurves: the parts' profiles and bounds, and each profile's segment upper
@@ -283,13 +297,19 @@ function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array): voi
  * model {@link lossScaleAnswer} simulates a dynamic scale with (exported for tests of its bounds). `lowestScale` is the
  * simulation's lowest scale: it never asks about a smaller one (it clamps every cut to it).
  */
-export function dynamicModel(gradients: TensorPrediction[], limits: RangeLimits, options: WindowOptions, lowestScale = 1): DynamicScaleModel {
+export function dynamicModel(
+  gradients: TensorPrediction[],
+  limits: RangeLimits,
+  options: WindowOptions,
+  lowestScale = 1,
+  profiles: readonly GradientProfiles[] = gradients.map(profilesOf),
+): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, HorizonPoint>();
   const at = (progress: number): HorizonPoint => {
     let point = points.get(progress);
     if (point === undefined) {
-      point = new HorizonPoint(gradients, progress);
+      point = new HorizonPoint(profiles, progress);
       points.set(progress, point);
     }
     return point;
@@ -357,24 +377,35 @@ class HorizonPoint {
   private readonly profiles: (MagnitudeProfile | undefined)[];
   /** per tensor 1 when its law is Gaussian with 16 elements or more (it has moment bounds), read off its start */
   readonly gaussian: Uint8Array;
+  // each profile's extreme-draw bounds, made on first use (at the horizon's ends, the answer's own)
+  private readonly draws: (ProfileDrawBounds | undefined)[];
 
   constructor(
-    private readonly gradients: readonly TensorPrediction[],
+    private readonly gradients: readonly GradientProfiles[],
     private readonly progress: number,
   ) {
-    this.n = gradients.length;
-    this.profiles = new Array<MagnitudeProfile | undefined>(this.n).fill(undefined);
-    this.gaussian = new Uint8Array(this.n);
-    for (let i = 0; i < this.n; i++) {
-      const start = gradients[i]!.start;
+    const n = gradients.length;
+    this.n = n;
+    this.profiles = new Array<MagnitudeProfile | undefined>(n).fill(undefined);
+    this.draws = new Array<ProfileDrawBounds | undefined>(n).fill(undefined);
+    this.gaussian = new Uint8Array(n);
+    for (let i = 0; i < n; i++) {
+      const g = gradients[i]!;
+      const start = g.start;
       const shape = start.shape;
       const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
       this.gaussian[i] = gaussianLaw && start.elements * (1 - start.zeroFraction) >= 16 ? 1 : 0;
+      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
+      if (progress <= 0) {
+        this.profiles[i] = start;
+        this.draws[i] = g.startBounds;
+      } else if (progress >= 1) {
+        this.profiles[i] = g.end;
+        this.draws[i] = g.endBounds;
+      }
     }
   }
 
-  // each profile's extreme-draw bounds, made on first use
-  private readonly draws: (ProfileDrawBounds | undefined)[] = [];
   drawBounds(i: number): ProfileDrawBounds {
     let d = this.draws[i];
     if (d === undefined) {
@@ -387,7 +418,8 @@ class HorizonPoint {
   profile(i: number): MagnitudeProfile {
     let p = this.profiles[i];
     if (p === undefined) {
-      p = profileAt(this.gradients[i]!, this.progress);
+      const g = this.gradients[i]!;
+      p = profileBetween(g.start, g.end, this.progress);
       this.profiles[i] = p;
     }
     return p;
@@ -773,6 +805,7 @@ function rankRemedies(
   options: WindowOptions,
   plan: PrecisionPlan,
   dynamic: DynamicScaleResult,
+  profiles: readonly GradientProfiles[],
 ): ScaleRemedy[] {
   const remedies: ScaleRemedy[] = [];
   const gradientBytes = getFormat(plan.gradients).bytes;
@@ -809,7 +842,8 @@ function rankRemedies(
   // 3. bfloat16 gradients: the same tensors against bfloat16's range
   if (plan.gradients !== "bfloat16") {
     const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
-    const bfCurves = boundedLossScaleCurves([...byId.values()], bf);
+    const gradients = [...byId.values()];
+    const bfCurves = boundedLossScaleCurves(gradients, bf, sameTensors(gradients, profiles) ? profiles : undefined);
     const w = lossScaleWindow(bfCurves, options);
     remedies.push({
       kind: "bfloat16-gradients",

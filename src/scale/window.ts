@@ -106,7 +106,13 @@ export function lossScaleWindows(
   // each id's tensors, made on the first set aside: a remedy sets aside a few tensors, looked up instead of testing
   // every tensor against the set
   let byId: Map<string, number[]> | undefined;
+  // each set aside's window, by its ids sorted: the remedies try the setters of both edges, often the same tensors
+  // (the search is exact for a set, so a window found once is the window)
+  const found = new Map<string, ScaleWindow>();
   return (setAside) => {
+    const key = setAside === undefined || setAside.size === 0 ? "" : JSON.stringify([...setAside].sort());
+    const known = found.get(key);
+    if (known !== undefined) return { ...known };
     const active = new Uint8Array(tensors.length).fill(1);
     if (setAside !== undefined && setAside.size > 0) {
       if (byId === undefined) {
@@ -120,7 +126,9 @@ export function lossScaleWindows(
       }
       for (const id of setAside) for (const i of byId.get(id) ?? []) active[i] = 0;
     }
-    return search.window(active);
+    const window = search.window(active);
+    found.set(key, window);
+    return { ...window };
   };
 }
 
