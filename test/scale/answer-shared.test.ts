@@ -8,7 +8,6 @@
 import { describe, expect, it } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
-import type { TensorPrediction } from "../../src/magnitude/types.js";
 import { energyBelow, limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
 import { boundedLossScaleCurves, lossScaleAnswer, profileAt } from "../../src/scale/recommend.js";
@@ -58,7 +57,9 @@ function deepStack(pairs: number): NetworkSpec {
 
 describe("the loss-scale answer's shared work", () => {
   const spec = deepStack(200);
-  const prediction = predict(buildGraph(spec).graph, spec);
+  const built = buildGraph(spec);
+  if (!built.ok) throw new Error(built.issues.map((i) => i.message).join("; "));
+  const prediction = predict(built.graph, spec);
   const answer = lossScaleAnswer(prediction, spec.precision, { steps: 1000, seed: 1 });
   const gradients = prediction.tensors.filter((t) => t.role === "activation-gradient" || t.role === "weight-gradient");
   const limits = limitsFor(spec.precision, "binary16");
@@ -86,7 +87,7 @@ describe("the loss-scale answer's shared work", () => {
     const direct: DynamicScaleModel = {
       overflowProbability(scale, progress) {
         let none = 1;
-        for (const t of gradients) none *= 1 - probabilityAnyAbove(profileAt(t as TensorPrediction, progress), limits.overflowLevel / scale);
+        for (const t of gradients) none *= 1 - probabilityAnyAbove(profileAt(t, progress), limits.overflowLevel / scale);
         return 1 - none;
       },
       flushesTooMuch(scale, progress) {
