@@ -4,7 +4,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, erf, erfc, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
-import { normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -422,8 +422,8 @@ function measureKind(measure: "any-above" | "below" | "energy-below"): number {
  * {@link overDraws} of a profile's element law at threshold t, without a closure: `anyOf(share·above(r, t), n)`
  * (share the positive share when `positiveOnly`), `below(r, t)` or `energyBelow(r, t)` of {@link elementLaw}.
  * The any-above sums follow the step of many elements (see anyAboveSum: within 1e-6 of the draw integral, not the
- * draw rule's sums); the Gaussian shares below are read off rows shared by every threshold (within 2e-6 of the rule's
- * sum, see gaussianTableValue); the other shares are {@link directLawOverDraws}: the Simpson rule for the smooth
+ * draw rule's sums); the Gaussian shares below are read off rows of the draw integral shared by every threshold
+ * (within 2e-7 of the integral, without the rule's ripple, see gaussianTableValue); the other shares are {@link directLawOverDraws}: the Simpson rule for the smooth
  * Gaussian and log-normal shares, the panels of a closure for the uniform and constant laws.
  */
 export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "below" | "energy-below", t: number, positiveOnly = false): number {
@@ -850,30 +850,35 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
 }
 
 // Shared tables of the Gaussian shares. The Gaussian law's below(r, t) and energyBelow(r, t) depend on t/r alone,
-// so a draw sum is F(x) = Σ_i w_i·G(x − spread·z_i) with x = log2(t/rms) and G(y) the law at r = 1, t = 2^y. For the
-// spreads a·ROW_STEP (rows) every node offset spread·z_i = a·(i − half)/128 lies on a grid of 1/128 binade, and so
-// does x − spread·z_i for x on the grid of 1/16 binade: F of every row at every x_k = k/16 is a sum of G values on
-// that one grid, each G computed once per process for all rows, thresholds, formats and loss scales. A share at
-// (spread, x) is the Lagrange polynomial through the TABLE_POINTS nearest x_k on each of the TABLE_POINTS nearest
-// rows, then through those in the spread (Abramowitz & Stegun 25.2.15 for the error term), in log F, so small
-// shares keep their relative accuracy. F is smooth in x and in the spread, the rule's ripple (its nodes are
-// spread/8 apart) is not: the rows stand in for the rule at the query's spread to within that ripple, below 1e-6 of
-// F up to a spread of 2.5 for the energy share (it grows as e^{−c/spread²}: 8e-6 at 3, 9e-5 at 4, measured), and up to
-// 4 for the share below, whose ripple stays below 2e-7 there (measured over the test's sweep: the energy share's
-// weight e^{3·spread·ln 2·|z|} far below the scale lies on the draws where the rule's nodes are coarsest against the
-// law's saturation, the share's weight e^{spread·ln 2·|z|} much less). In the complement of a share near 1 the ripple
-// is too large, so past ROWS_UPPER_SHARE the direct rule decides, as it does where a point is 0 and outside the spreads
-// TABLE_MIN_SPREAD … the measure's TABLE_MAX_SPREAD. test/risk/laws.test.ts bounds the difference from the direct
-// rule over a sweep of spreads and thresholds.
+// so a draw integral is F(x) = ∫ φ(z)·G(x − s·z) dz over |z| ≤ 9 (normalised there, as the draw rule is), x =
+// log2(t/rms), s the spread, G(y) the law at r = 1, t = 2^y. In y = s·z (binades) it is the convolution of G with the
+// density φ(y/s)/s, summed here by the trapezoid rule on the grid of 1/16 binade: y_j = j/16, so for the spreads a/16
+// (rows) the ends ±9s are grid points, and for x_k = k/16 every x_k − y_j is one too: F and its complement C = 1 − F
+// of every row at every x_k are sums of G and 1 − G values on one grid, each computed once per process (src/numeric's
+// erf and erfc, accurate to about 1e-15 relative, the complement deep into its tail) for all rows, thresholds, formats
+// and loss scales. The trapezoid rule converges geometrically in 1/step for an integrand analytic in a strip
+// (Trefethen & Weideman 2014, SIAM Review 56(3), §5; from memory): G is analytic within |Im y|·ln 2 < π/4, where
+// erf(2^y/√2)'s argument squared keeps a positive real part, so its error is about e^{−2π·1.1·16} ≈ 1e-48, and the
+// density's at step 1/16 ≤ s/2 about 2e^{−2π²·4} ≈ 1e-34 (the same theorem): the nodes are spaced in binades, not in
+// z, so unlike the draw rule (nodes s/8 binades apart, a ripple growing as e^{−c/s²}: 9e-5 of the energy share at
+// s = 4, measured) the rows carry no ripple at any spread. A share at (s, x) is the Lagrange polynomial through the
+// TABLE_POINTS nearest x_k on each of the TABLE_POINTS nearest rows, then through those in the spread (Abramowitz &
+// Stegun 25.2.15 for the error term), in log F, so small shares keep their relative accuracy, and past ROWS_UPPER_SHARE
+// in log C, so shares near 1 keep the digits of their complement. Where a point is 0 (or its complement), outside the
+// spreads TABLE_MIN_SPREAD … TABLE_MAX_SPREAD and far outside the draws, the direct rule decides.
+// test/risk/share-tables.test.ts holds the rows to a fine quadrature of the integral and to the direct rule where that
+// rule's ripple is below 1e-7.
 const TABLE_MIN_SPREAD = 0.25;
-const TABLE_MAX_SPREAD = 4;
-const TABLE_MAX_ENERGY_SPREAD = 2.5;
+const TABLE_MAX_SPREAD = 8;
 const ROWS_UPPER_SHARE = 0.9;
+const LOG_UPPER_SHARE = Math.log(ROWS_UPPER_SHARE);
+// below this spread the complement's log bends too fast in the spread (about as −c/s²) for the rows' polynomial
+const COMPLEMENT_MIN_SPREAD = 0.5;
 const TABLE_POINTS = 6;
+const SPREAD_POINTS = 8;
 const ROW_STEP = 1 / 16;
-// grid points of G per binade, and of F per binade (x_k = k/16 is G point 8k)
-const G_PER_BINADE = 128;
-const F_STRIDE = 8;
+// grid points per binade of G and of the rows' x_k (the rows are a/16, the same grid)
+const PER_BINADE = 16;
 interface Window {
   base: number;
   values: Float64Array;
@@ -890,131 +895,179 @@ function coverWindow(window: Window, from: number, to: number): void {
   window.base = low;
   window.values = grown;
 }
-// G on the grid of 1/128 binade, per measure (BELOW, ENERGY_BELOW)
-const GRID: Window[] = [
-  { base: 0, values: new Float64Array(0) },
-  { base: 0, values: new Float64Array(0) },
-];
-// the rows' F at x_k, per measure and row a
-const ROWS: (Window | undefined)[] = [];
-// F of row a (spread a/16) at x_k = k/16
-function rowSum(kind: number, a: number, k: number): number {
-  const slot = 2 * a + (kind === BELOW ? 0 : 1);
-  let row = ROWS[slot];
-  if (row === undefined) {
-    row = { base: 0, values: new Float64Array(0) };
-    ROWS[slot] = row;
-  }
-  if (!(k >= row.base && k < row.base + row.values.length)) coverWindow(row, k, k);
-  const known = row.values[k - row.base] as number;
-  if (known === known) return known;
-  const w = DRAW_NODES.w;
-  const count = w.length;
-  const half = (count - 1) / 2;
-  // node i sits at z = (i − half)/8, so x_k − (a/16)·z is G point 8k − a·(i − half)
-  const top = F_STRIDE * k + a * half;
-  const grid = GRID[kind === BELOW ? 0 : 1] as Window;
-  coverWindow(grid, top - a * (count - 1), top);
-  const g = grid.values;
-  const offset = top - grid.base;
-  const energy = kind === ENERGY_BELOW;
-  let sum = 0;
-  for (let i = 0; i < count; i++) {
-    const at = offset - a * i;
-    let value = g[at] as number;
-    if (value !== value) {
-      const t = 2 ** ((top - a * i) / G_PER_BINADE);
-      value = energy ? gaussianEnergyBelow(1, t) : gaussianBelow(1, t);
-      g[at] = value;
-    }
-    sum += (w[i] as number) * value;
-  }
-  row.values[k - row.base] = sum;
-  return sum;
+function emptyWindow(): Window {
+  return { base: 0, values: new Float64Array(0) };
 }
-// log F of row a at x_k, kept beside the rows (a point is read by every patch that covers it, up to 36 of them); 1
-// where F is outside (0, ROWS_UPPER_SHARE], which the table leaves to the direct rule
+// G and 1 − G on the grid of 1/16 binade, per measure (BELOW, ENERGY_BELOW)
+const GRID: Window[] = [emptyWindow(), emptyWindow()];
+const GRID_COMPLEMENT: Window[] = [emptyWindow(), emptyWindow()];
+// fill G and 1 − G at grid points [from, to] of the measure's grids
+function coverGrid(measure: number, from: number, to: number): void {
+  const grid = GRID[measure] as Window;
+  const complement = GRID_COMPLEMENT[measure] as Window;
+  if (grid.values.length > 0 && from >= grid.base && to < grid.base + grid.values.length) return;
+  coverWindow(grid, from, to);
+  coverWindow(complement, grid.base, grid.base + grid.values.length - 1);
+  const g = grid.values;
+  const c = complement.values;
+  for (let i = 0; i < g.length; i++) {
+    if (g[i] === g[i]) continue;
+    const a = 2 ** ((grid.base + i) / PER_BINADE);
+    let below: number;
+    let above: number;
+    if (measure === 0) {
+      // P(|Z| ≤ a) = erf(a/√2), its complement erfc(a/√2) (Abramowitz & Stegun 26.2.29)
+      below = preciseErf(a / SQRT2);
+      above = preciseErfc(a / SQRT2);
+    } else if (a < 1) {
+      // the energy share's series, as gaussianEnergyBelow sums it (no cancellation below a = 1)
+      below = gaussianEnergyBelow(1, a);
+      above = 1 - below;
+    } else {
+      // its complement erfc(a/√2) + 2aφ(a) (integration by parts, as in gaussianEnergyBelow)
+      above = preciseErfc(a / SQRT2) + 2 * a * normalPdf(a);
+      below = 1 - above;
+    }
+    g[i] = below;
+    c[i] = above;
+  }
+}
+// the trapezoid weights of row a (spread a/16) at y_j = j/16, j = 0 … 9a (symmetric), normalised over |z| ≤ 9
+const ROW_WEIGHTS_OF: (Float64Array | undefined)[] = [];
+function rowWeights(a: number): Float64Array {
+  let weights = ROW_WEIGHTS_OF[a];
+  if (weights === undefined) {
+    const last = 9 * a;
+    weights = new Float64Array(last + 1);
+    let total = 0;
+    for (let j = 0; j <= last; j++) {
+      const z = j / a;
+      const w = (j === last ? 0.5 : 1) * Math.exp(-0.5 * z * z);
+      weights[j] = w;
+      total += j === 0 ? w : 2 * w;
+    }
+    for (let j = 0; j <= last; j++) weights[j] = (weights[j] as number) / total;
+    ROW_WEIGHTS_OF[a] = weights;
+  }
+  return weights;
+}
+// log F and log C of the rows at x_k, per measure and row a (slot 2a + measure); NaN: not yet computed, −∞ where the
+// value is 0
 const ROW_LOGS: (Window | undefined)[] = [];
-// the window of row a's logs, covering x_from … x_to
-function rowLogs(kind: number, a: number, from: number, to: number): Window {
-  const slot = 2 * a + (kind === BELOW ? 0 : 1);
-  let row = ROW_LOGS[slot];
+const ROW_COMPLEMENT_LOGS: (Window | undefined)[] = [];
+// the windows of row a's logs (slot), covering x_from … x_to
+function rowWindow(rows: (Window | undefined)[], slot: number, from: number, to: number): Window {
+  let row = rows[slot];
   if (row === undefined) {
-    row = { base: 0, values: new Float64Array(0) };
-    ROW_LOGS[slot] = row;
+    row = emptyWindow();
+    rows[slot] = row;
   }
   if (!(from >= row.base && to < row.base + row.values.length)) coverWindow(row, from, to);
   return row;
 }
-function rowLog(kind: number, a: number, k: number): number {
-  const row = rowLogs(kind, a, k, k);
-  let log = row.values[k - row.base] as number;
-  if (log === log) return log;
-  const value = rowSum(kind, a, k);
-  log = value > 0 && value <= ROWS_UPPER_SHARE ? Math.log(value) : 1;
-  row.values[k - row.base] = log;
-  return log;
+// F and C of row a at x_k into their log windows
+function rowPoint(measure: number, a: number, k: number): void {
+  const slot = 2 * a + measure;
+  const logs = rowWindow(ROW_LOGS, slot, k, k);
+  const complementLogs = rowWindow(ROW_COMPLEMENT_LOGS, slot, k, k);
+  const weights = rowWeights(a);
+  const last = 9 * a;
+  coverGrid(measure, k - last, k + last);
+  const grid = GRID[measure] as Window;
+  const g = grid.values;
+  const c = (GRID_COMPLEMENT[measure] as Window).values;
+  // x_k − y_j is grid point k − j
+  const centre = k - grid.base;
+  let below = (weights[0] as number) * (g[centre] as number);
+  let above = (weights[0] as number) * (c[centre] as number);
+  for (let j = 1; j <= last; j++) {
+    const w = weights[j] as number;
+    below += w * ((g[centre - j] as number) + (g[centre + j] as number));
+    above += w * ((c[centre - j] as number) + (c[centre + j] as number));
+  }
+  logs.values[k - logs.base] = Math.log(below);
+  complementLogs.values[k - complementLogs.base] = Math.log(above);
 }
-// Lagrange weights at s over the points 0 … TABLE_POINTS − 1: Π_{m≠k}(s − m)/(k − m), the numerator as the product
-// of the factors below k and above k (running products from either end), the denominator's inverse taken once
-const X_WEIGHTS = new Float64Array(TABLE_POINTS);
-const S_WEIGHTS = new Float64Array(TABLE_POINTS);
-const LAGRANGE_SCALE = (() => {
-  const scale = new Float64Array(TABLE_POINTS);
-  for (let k = 0; k < TABLE_POINTS; k++) {
+// Lagrange weights at s over the points 0 … n − 1: Π_{m≠k}(s − m)/(k − m), the numerator as the product of the
+// factors below k and above k (running products from either end), the denominators' inverses taken once
+function lagrangeScale(n: number): Float64Array {
+  const scale = new Float64Array(n);
+  for (let k = 0; k < n; k++) {
     let denominator = 1;
-    for (let m = 0; m < TABLE_POINTS; m++) if (m !== k) denominator *= k - m;
+    for (let m = 0; m < n; m++) if (m !== k) denominator *= k - m;
     scale[k] = 1 / denominator;
   }
   return scale;
-})();
-function lagrangeWeights(into: Float64Array, s: number): void {
+}
+const X_WEIGHTS = new Float64Array(TABLE_POINTS);
+const S_WEIGHTS = new Float64Array(SPREAD_POINTS);
+const X_SCALE = lagrangeScale(TABLE_POINTS);
+const S_SCALE = lagrangeScale(SPREAD_POINTS);
+function lagrangeWeights(into: Float64Array, scale: Float64Array, s: number): void {
+  const n = into.length;
   let below = 1;
-  for (let k = 0; k < TABLE_POINTS; k++) {
-    into[k] = below * (LAGRANGE_SCALE[k] as number);
+  for (let k = 0; k < n; k++) {
+    into[k] = below * (scale[k] as number);
     below *= s - k;
   }
   let above = 1;
-  for (let k = TABLE_POINTS - 1; k >= 0; k--) {
+  for (let k = n - 1; k >= 0; k--) {
     into[k] = (into[k] as number) * above;
     above *= s - k;
   }
 }
 // the point S_WEIGHTS were last taken at (NaN: never)
 const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
-// the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
-// direct rule decides
-function gaussianTableValue(kind: number, spread: number, x: number): number {
-  if (!(spread >= TABLE_MIN_SPREAD && spread <= (kind === BELOW ? TABLE_MAX_SPREAD : TABLE_MAX_ENERGY_SPREAD)) || !Number.isFinite(x)) return NaN;
-  // far above the spread every share is past 0.9 (the rule finds 1 at its two end nodes); far below it the small
-  // ratios' closed form applies: rows there would only grow the grids
-  if (x > DRAW_LIMIT * spread + 4 || x < -DRAW_LIMIT * spread - 40) return NaN;
-  const v = spread / ROW_STEP;
-  const firstRow = Math.floor(v) - (TABLE_POINTS >> 1) + 1;
-  const u = x / ROW_STEP;
-  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
-  lagrangeWeights(X_WEIGHTS, u - first);
-  // the calls for one profile share its spread
-  const s = v - firstRow;
-  if (s !== S_WEIGHTS_AT[0]) {
-    lagrangeWeights(S_WEIGHTS, s);
-    S_WEIGHTS_AT[0] = s;
-  }
+// the interpolated log of the rows firstRow … (ROW_LOGS or ROW_COMPLEMENT_LOGS) over x_first …; NaN where a point is 0
+function patchLog(rows: (Window | undefined)[], measure: number, firstRow: number, first: number): number {
   let result = 0;
-  for (let r = 0; r < TABLE_POINTS; r++) {
-    const row = rowLogs(kind, firstRow + r, first, first + TABLE_POINTS - 1);
-    const values = row.values;
+  for (let r = 0; r < SPREAD_POINTS; r++) {
+    const a = firstRow + r;
+    const row = rowWindow(rows, 2 * a + measure, first, first + TABLE_POINTS - 1);
     const at = first - row.base;
     let sum = 0;
     for (let k = 0; k < TABLE_POINTS; k++) {
-      let log = values[at + k] as number;
-      if (log !== log) log = rowLog(kind, firstRow + r, first + k);
-      if (log > 0) return NaN;
+      let log = row.values[at + k] as number;
+      if (log !== log) {
+        rowPoint(measure, a, first + k);
+        // rowPoint may have grown this window
+        log = (rows[2 * a + measure] as Window).values[first + k - (rows[2 * a + measure] as Window).base] as number;
+      }
+      if (log === -Infinity) return NaN;
       sum += (X_WEIGHTS[k] as number) * log;
     }
-    result += (S_WEIGHTS[r] as number) * sum;
+    result += (S_WEIGHTS[r] as number) * (rows === ROW_COMPLEMENT_LOGS ? a * a * sum : sum);
   }
-  return Math.min(1, Math.max(0, Math.exp(result)));
+  return result;
+}
+// the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
+// direct rule decides
+function gaussianTableValue(kind: number, spread: number, x: number): number {
+  if (!(spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) || !Number.isFinite(x)) return NaN;
+  // far above the spread every share is 1 (the rule finds 1 at its two end nodes); far below it the small ratios'
+  // closed form applies: rows there would only grow the grids
+  if (x > DRAW_LIMIT * spread + 4 || x < -DRAW_LIMIT * spread - 40) return NaN;
+  const measure = kind === BELOW ? 0 : 1;
+  const v = spread / ROW_STEP;
+  const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
+  const u = x / ROW_STEP;
+  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
+  lagrangeWeights(X_WEIGHTS, X_SCALE, u - first);
+  // the calls for one profile share its spread
+  const s = v - firstRow;
+  if (s !== S_WEIGHTS_AT[0]) {
+    lagrangeWeights(S_WEIGHTS, S_SCALE, s);
+    S_WEIGHTS_AT[0] = s;
+  }
+  const log = patchLog(ROW_LOGS, measure, firstRow, first);
+  if (!(log <= LOG_UPPER_SHARE)) return log === log && spread >= COMPLEMENT_MIN_SPREAD ? Math.min(1, Math.max(0, complementShare(measure, spread, firstRow, first))) : NaN;
+  return Math.min(1, Math.max(0, Math.exp(log)));
+}
+// 1 − C of the patch, C interpolated in log; NaN where a point's complement is 0
+function complementShare(measure: number, spread: number, firstRow: number, first: number): number {
+  const v = spread / ROW_STEP;
+  const log = patchLog(ROW_COMPLEMENT_LOGS, measure, firstRow, first) / (v * v);
+  return -Math.expm1(log);
 }
 
 // Where a monotone function f(v) crosses p: "beyond" is the side past the crossing as v grows (f ≤ p for a
@@ -1201,9 +1254,10 @@ function memoMixture(j: number, sum: number): number {
   return sum;
 }
 // The Gaussian share below, where its rows cover the spread, is read off them (gaussianTableValue) instead of
-// summed on the search's own lattice: the rule's sums at the search's lattice points to about 1e-6 relative, so the
-// level moves by about that over the slope of the log share (test/risk/laws.test.ts bounds it against the lattice's
-// own sums).
+// summed on the search's own lattice: the draw integral at the search's lattice points to about 2e-7 relative (the
+// lattice's own sums carry the rule's ripple), so the level is the integral's crossing on the lattice
+// (test/risk/share-tables.test.ts; test/risk/laws.test.ts bounds it against the lattice's own sums where their ripple
+// is small).
 let latticeTable = false;
 let latticeSpread = 0;
 
@@ -1230,7 +1284,7 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
  * {@link mixtureCrossing} of a profile's element law without its bound, at r = 1 and t = 2^v:
  * g(v) = anyOf(above(1, 2^v), n) (`measure` "any-above", decreasing) or below(1, 2^v) ("below", increasing), the
  * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian"). The Gaussian
- * "below" mixture is read off the shared rows of the draw rule's sums where they cover the spread; `viaRows` false
+ * "below" mixture is read off the shared rows of the draw integral where they cover the spread; `viaRows` false
  * sums it on the search's own lattice (the reference the rows are held to in the tests). The "any-above" level is
  * solved on {@link lawOverDraws}' any-above sums themselves (anyAboveLevel), so the probability there is p.
  */

@@ -4,7 +4,7 @@ import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { erfc as fastErfc, normalPdf } from "../../src/risk/_math.js";
 import { directLawOverDraws, elementLaw, lawMixtureCrossing, lawOverDraws } from "../../src/risk/laws.js";
 
-// The shares below and energy below of the Gaussian laws are read off shared rows up to a spread of 4 (energy: 2.5),
+// The shares below and energy below of the Gaussian laws are read off shared rows from a spread of 0.25 to 8,
 // their draw sums take the scale factors of the rule's nodes from products of three powers per spread, and the Gaussian
 // energy share at a node is summed by Horner. Held here to references written out in the test: the full Simpson rule
 // with each node's power taken at once, the energy share's series term by term (the integral of z²φ(z), Abramowitz &
@@ -83,15 +83,19 @@ describe("the fast Gaussian shares over draws", () => {
     rmsLog2: fc.double({ min: -30, max: 10, noNaN: true }),
   });
 
-  // the rows of the share below stand in for the direct rule within 1e-6 at every spread to 4 (the energy share's to
-  // 2.5 within 2e-6, as test/risk/laws.test.ts holds); past the rows the direct rule decides
-  it("read off the rows, stay within 1e-6 (share below) and 2e-6 (energy share) of the direct rule", () => {
+  // the rows stand in for the direct rule within 1e-6 (share below) and 2e-6 (energy share) where that rule's ripple is
+  // small: spreads to 2, shares to 0.9 (its complement near 1 carries the ripple); test/risk/share-tables.test.ts holds
+  // the rows to a fine quadrature of the integral at every spread to 8
+  it("read off the rows, stay within 1e-6 (share below) and 2e-6 (energy share) of the direct rule to spread 2", () => {
     fc.assert(
       fc.property(cases, ({ shape, log2Spread, position, offset, elements, rmsLog2 }) => {
-        const profile = profileOf(shape, log2Spread, elements, 2 ** rmsLog2);
-        const t = profile.rms * 2 ** (position * 9 * log2Spread + offset);
-        expect(apart(lawOverDraws(profile, "below", t), directLawOverDraws(profile, "below", t))).toBeLessThan(1e-6);
-        expect(apart(lawOverDraws(profile, "energy-below", t), directLawOverDraws(profile, "energy-below", t))).toBeLessThan(2e-6);
+        const spread = Math.min(log2Spread, 2);
+        const profile = profileOf(shape, spread, elements, 2 ** rmsLog2);
+        const t = profile.rms * 2 ** (position * 9 * spread + offset);
+        const below = directLawOverDraws(profile, "below", t);
+        const energy = directLawOverDraws(profile, "energy-below", t);
+        if (below <= 0.9) expect(apart(lawOverDraws(profile, "below", t), below)).toBeLessThan(1e-6);
+        if (energy <= 0.9) expect(apart(lawOverDraws(profile, "energy-below", t), energy)).toBeLessThan(2e-6);
       }),
       { numRuns: 3000 },
     );
@@ -122,11 +126,13 @@ describe("the fast Gaussian shares over draws", () => {
   });
 
   // the levels of the low quantile read off the rows, against the search on its own lattice (viaRows false)
-  it("give the low-quantile levels within 1e-6 binade of the search on its own lattice, to a spread of 4.2", () => {
+  // (to a spread of 2: past it the lattice's own sums carry the direct rule's ripple, and test/risk/share-tables.test.ts
+  // holds the levels to the integral)
+  it("give the low-quantile levels within 1e-6 binade of the search on its own lattice, to a spread of 2", () => {
     fc.assert(
       fc.property(
         fc.constantFrom(...gaussianShapes),
-        fc.double({ min: 0.25, max: 4.2, noNaN: true }),
+        fc.double({ min: 0.25, max: 2, noNaN: true }),
         fc.double({ min: -5, max: -0.5, noNaN: true }),
         (shape, log2Spread, pLog10) => {
           const profile = profileOf(shape, log2Spread, 1000, 1);

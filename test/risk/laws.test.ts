@@ -144,17 +144,17 @@ describe("draw sums of the element laws", () => {
     }
   });
 
-  // The Gaussian shares below and energy below are read off rows of the rule's sums shared by every threshold
-  // (spreads 1/16 apart from 0.25 to 4 for the share below, to 2.5 for the energy share; the direct rule past them),
-  // interpolated in x = log2(t/rms) and the spread. Held to the direct rule over spreads and thresholds wherever the
-  // rule, not the closed form of the small ratios, gives the share: relative to the value and to its complement (down
-  // to 1e-6, as above); the share below to 1e-6 at every spread.
-  it("read off the shared lattices stay within 2e-6 of the direct rule", () => {
+  // The Gaussian shares below and energy below are read off rows of the draw integral summed in binades, shared by
+  // every threshold (spreads 1/16 apart from 0.25 to 8), interpolated in x = log2(t/rms) and the spread. Held to the
+  // direct rule where its own ripple is small (spreads to 2, shares to 0.9: its complement near 1 carries the ripple)
+  // and the rule, not the closed form of the small ratios, gives the share; test/risk/share-tables.test.ts holds the
+  // rows to a fine quadrature of the integral at every spread.
+  it("read off the shared lattices stay within 2e-6 of the direct rule where its ripple is small", () => {
     let worst = 0;
     let worstBelow = 0;
     let worstCase: unknown = null;
     let compared = 0;
-    for (let step = 0; step <= 78; step++) {
+    for (let step = 0; step <= 35; step++) {
       const log2Spread = 0.25 + step * 0.0503;
       {
         const shape = (["gaussian", "half-gaussian", "bounded"] as const)[step % 3]!;
@@ -166,6 +166,7 @@ describe("draw sums of the element laws", () => {
             const closed = measure === "below" ? gaussianBelowOverDraws(2 ** x, log2Spread) : gaussianEnergyBelowOverDraws(2 ** x, log2Spread);
             if (!Number.isNaN(closed)) continue;
             const direct = directLawOverDraws(profile, measure, t);
+            if (direct > 0.9) continue;
             const d = apart(lawOverDraws(profile, measure, t), direct);
             compared++;
             if (measure === "below") worstBelow = Math.max(worstBelow, d);
@@ -177,18 +178,19 @@ describe("draw sums of the element laws", () => {
         }
       }
     }
-    expect(compared).toBeGreaterThan(30000);
+    expect(compared).toBeGreaterThan(8000);
     if (worst >= 2e-6) console.log(JSON.stringify(worstCase));
     expect(worst).toBeLessThan(2e-6);
     expect(worstBelow).toBeLessThan(1e-6);
   });
 
-  // The Gaussian "below" crossing reads the mixture off the shared rows (to about 1e-8 of the rule's sum), so its
-  // level moves by about that over the slope of the log mixture: held within 1e-6 binade of the search on its own
-  // lattice, over spreads the rows cover and past them, and quantile levels from 1e-5 to 0.3.
+  // The Gaussian "below" crossing reads the mixture off the shared rows (to about 1e-8 of the rule's sum where the
+  // rule's ripple is small), so its level moves by about that over the slope of the log mixture: held within 1e-6
+  // binade of the search on its own lattice, over spreads to 2 (past them the lattice's sums carry the ripple;
+  // test/risk/share-tables.test.ts holds the levels to the integral there) and quantile levels from 1e-5 to 0.3.
   it("read the Gaussian share below off the shared rows within 1e-6 binade of the lattice's own sums", () => {
     let worst = 0;
-    for (let step = 0; step <= 192; step++) {
+    for (let step = 0; step <= 84; step++) {
       const log2Spread = 0.2 + step * 0.0213;
       const shape = (["gaussian", "half-gaussian", "bounded"] as const)[step % 3]!;
       const profile: MagnitudeProfile = { elements: 1000, zeroFraction: 0.25, shape, rms: 1, log2Spread, bound: 6 };
