@@ -13,7 +13,7 @@ import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { lossSeed } from "./loss.js";
-import { profileOf } from "./profile.js";
+import { plainProfile, profileOf } from "./profile.js";
 import { carriedMeanSquare, predictionRangeError } from "./range.js";
 import type {
   HazardSite,
@@ -240,7 +240,7 @@ class Phase {
       q = value * value;
       zero = value === 0;
     }
-    const profile = profileOf({ q, zeroFraction: zero ? 1 : 0, shape: constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", logVar: 0 }, w.elements);
+    const profile = plainProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", 0, w.elements);
     let node: LedgerNode | null = null;
     let id = "";
     if (this.build) {
@@ -397,7 +397,7 @@ class Phase {
     const coherent = wg.coherentQ * A * A * W * W / (averaged ? W * W : 1);
     // an element of the combined gradient is zero only when it is zero in every micro-batch, taken as independent (exact
     // for the rows an embedding leaves untouched; a lower bound for a ReLU unit, whose off-state persists across them)
-    const profile = profileOf({ q: finalQ, zeroFraction: Math.pow(wg.zeroFraction, A * W), shape: "gaussian", logVar: wg.logVar }, weight.elements);
+    const profile = plainProfile(finalQ, Math.pow(wg.zeroFraction, A * W), "gaussian", wg.logVar, weight.elements);
     const keep = 1 - profile.zeroFraction;
     profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
     let id = "";
@@ -432,12 +432,12 @@ class Phase {
     const site: HazardSite = {
       kind: "gradient-sum",
       layer: layer.name,
-      input: profileOf({ q: wg.q, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
+      input: plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements),
       terms,
       guarded: false,
       constant: undefined,
       detail: !this.build ? "" : id + this.sumDetail(),
-      output: profileOf({ q: summedQ, zeroFraction: wg.zeroFraction, shape: "gaussian", logVar: wg.logVar }, weight.elements),
+      output: plainProfile(summedQ, wg.zeroFraction, "gaussian", wg.logVar, weight.elements),
       end: undefined,
       tensor: this.build ? id : undefined,
     };

@@ -139,25 +139,43 @@ function maxElementOf(shape: OpElementShape, tail: TailKind | undefined, element
  */
 export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   // each field is read once: the moments come in many object shapes, so every read is a slow lookup
-  const q = m.q;
-  const bound = m.bound;
-  const shape = m.shape;
-  const zeroFraction = Math.min(Math.max(m.zeroFraction, 0), 1);
+  return profileFrom(m.q, m.zeroFraction, m.shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements);
+}
+
+/**
+ * {@link profileOf} for moments with no bound, element spread, tail or shared parts (weights, weight gradients and
+ * their sums, loss values): the same arithmetic, with no moments object to make and read.
+ */
+export function plainProfile(q: number, zeroFraction: number, shape: OpElementShape, logVar: number, elements: number): MagnitudeProfile {
+  return profileFrom(q, zeroFraction, shape, logVar, undefined, undefined, undefined, undefined, undefined, elements);
+}
+
+function profileFrom(
+  q: number,
+  givenZeroFraction: number,
+  shape: OpElementShape,
+  givenLogVar: number,
+  bound: number | undefined,
+  givenSpread: number | undefined,
+  tail: TailKind | undefined,
+  shared: number | undefined,
+  given: number | undefined,
+  elements: number,
+): MagnitudeProfile {
+  const zeroFraction = Math.min(Math.max(givenZeroFraction, 0), 1);
   const keep = 1 - zeroFraction;
-  const logVar = Math.max(m.logVar, 0);
+  const logVar = Math.max(givenLogVar, 0);
   const meanRms = keep > 0 && q > 0 ? Math.sqrt(q / keep) : 0;
   let rms = meanRms * Math.exp(-logVar / 4);
   if (bound !== undefined && rms > bound) rms = bound;
-  let elementLog2Spread = m.elementLog2Spread;
+  let elementLog2Spread = givenSpread;
   if (shape === "log-normal" && elementLog2Spread !== undefined && elementLog2Spread > 0 && rms > 0) {
     const widest = widestLogNormalSpread(rms, bound, elements * keep);
     if (elementLog2Spread > widest) elementLog2Spread = widest;
   }
   const log2Spread = Math.sqrt(logVar) / (2 * Math.LN2);
-  const maxElement = maxElementOf(shape, m.tail, elementLog2Spread, bound, rms, elements * keep);
-  const shared = m.shared;
+  const maxElement = maxElementOf(shape, tail, elementLog2Spread, bound, rms, elements * keep);
   const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
-  const given = m.positionCorrelation;
   const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
   // one literal with every key, absent ones undefined, in the order the JSON output has always had them: every
   // profile then has one hidden class (keys added one by one would give each combination its own chain of classes),
