@@ -38,6 +38,20 @@ interface LedgerNode {
   parent: LedgerNode | null;
 }
 
+/**
+ * What a prediction's ledgers are worked out from: the start pass is run again with its ledger nodes linked when a
+ * tensor's ledger is first read (the same operations in the same order, so the same factors as a pass that linked
+ * them at once). The graph and spec are the ones predicted, kept by reference: changing them afterwards changes the
+ * ledgers read later.
+ */
+interface LedgerSource {
+  graph: Graph;
+  spec: NetworkSpec;
+  lossScale: number;
+  /** every start tensor's node, in emission order, once worked out */
+  nodes: (LedgerNode | null)[] | undefined;
+}
+
 interface PhaseResult {
   tensors: PredictedTensor[];
   hazards: HazardSite[];
@@ -108,6 +122,9 @@ class Phase {
   readonly ctx: OpContext;
   private readonly endVariance = new Map<GraphWeight, number>();
 
+  /** whether the start pass links its ledger nodes: only when a ledger is read ({@link LedgerSource}) */
+  readonly ledger: boolean;
+
   constructor(
     readonly graph: Graph,
     readonly spec: NetworkSpec,
@@ -115,8 +132,11 @@ class Phase {
     readonly build: boolean,
     readonly lossScale: number,
     startTensors?: PredictedTensor[],
+    readonly source: LedgerSource | null = null,
   ) {
     this.tensors = startTensors ?? [];
+    // a pass with a source leaves the ledger to it; a pass without one (the source's own) links the nodes
+    this.ledger = build && source === null;
     const growth = phase === "end" ? spec.training.horizon.weightGrowth : 1;
     const growth2 = growth * growth;
     this.ctx = {
@@ -180,7 +200,7 @@ class Phase {
     // a value that left binary64's range would reach the verdict as rms 0 or infinity: an input error instead
     if (!carriedMeanSquare(profile.meanSquare ?? 0)) this.outOfRange(layer, layerIndex, role, profile.meanSquare ?? 0);
     if (this.phase === "start") {
-      this.tensors.push(new PredictedTensor(id, layer, layerIndex, family, role, slot, shape, profile, ledger));
+      this.tensors.push(new PredictedTensor(id, layer, layerIndex, family, role, slot, shape, profile, ledger, this.source, this.tensors.length));
       return;
     }
     const a = this.tensors[this.emitted++];
@@ -245,7 +265,7 @@ class Phase {
     let id = "";
     if (this.build) {
       id = w.name === "weight" ? `${prefix}weight` : `${prefix}weight:${w.name}`;
-      if (profile.rms > 0) node = weightNode(layer.name, w, variance, profile.rms);
+      if (this.ledger && profile.rms > 0) node = weightNode(layer.name, w, variance, profile.rms);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight", "weights", w.shape, profile, node);
   }
@@ -273,7 +293,7 @@ class Phase {
       for (let i = 0; i < inner.length; i++) this.innerTensor(layer, prefix, inner[i] as InnerTensor, current);
       const hazards = result.hazards;
       for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
-      current = chain(current, layer.name, result.factors, this.build);
+      current = chain(current, layer.name, result.factors, this.ledger);
       signal = result.output;
       // two features' covariance is carried through dense layers, activations, layer and RMS norms, dropout, residual
       // blocks and attention only
@@ -313,7 +333,7 @@ class Phase {
       "activations",
       inner.shape,
       profileOf(inner.signal, inner.elements),
-      chain(node, layer.name, inner.factors, this.build),
+      chain(node, layer.name, inner.factors, this.ledger),
     );
   }
 
@@ -345,7 +365,7 @@ class Phase {
       for (let k = 0; k < inner.length; k++) this.innerGradient(layer, prefix, inner[k] as InnerGradient, current);
       const weightGradients = result.weightGradients;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
-      current = chain(current, layer.name, result.factors, this.build);
+      current = chain(current, layer.name, result.factors, this.ledger);
       gradient = input;
     }
     return gradient;
@@ -357,7 +377,7 @@ class Phase {
     // (present only with a value: a delete of an absent key is skipped, for speed)
     if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
     if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
-    const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.build), false);
+    const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.ledger), false);
     return { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
   }
 
@@ -371,7 +391,7 @@ class Phase {
       "gradients",
       inner.shape,
       profileOf(inner.gradient, inner.elements),
-      chain(node, layer.name, inner.factors, this.build),
+      chain(node, layer.name, inner.factors, this.ledger),
     );
   }
 
@@ -404,7 +424,7 @@ class Phase {
     let ledger: LedgerNode | null = null;
     if (this.build) {
       id = wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`;
-      ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
+      if (this.ledger) ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight-gradient", "gradients", weight.shape, profile, ledger);
     if (A * W > 1) this.gradientSumHazard(layer, wg, weight, summedQ, A * W, id);
@@ -503,8 +523,17 @@ function lossValueMoments(value: number, W: number): { q: number; zeroFraction: 
 }
 
 /** Run one phase: forward, loss, backward. */
-function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build: boolean, lossScale: number, startTensors?: PredictedTensor[]): PhaseResult {
-  const p = new Phase(graph, spec, phase, build, lossScale, startTensors);
+function runPhase(
+  graph: Graph,
+  spec: NetworkSpec,
+  phase: "start" | "end",
+  build: boolean,
+  lossScale: number,
+  startTensors?: PredictedTensor[],
+  source: LedgerSource | null = null,
+): PhaseResult {
+  const p = new Phase(graph, spec, phase, build, lossScale, startTensors, source);
+  const ledger = p.ledger;
   const input = spec.input;
   let signal: Signal;
   let node: LedgerNode | null = null;
@@ -517,7 +546,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     // two independent isotropic Gaussian samples of d features have E[cos²] = 1/d (common practice); one position each
     const features = input.kind === "features" ? input.features : 0;
     if (input.kind === "features" && input.positions === 1 && features > 0) signal.correlationSquare = 1 / features;
-    node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], build);
+    node = chain(null, "input", [{ ratio: q, rule: `input scale (rms of an input value) = ${input.scale}`, source: "the spec's input scale" }], ledger);
     p.emit(
       build ? "input/activation" : "",
       "input",
@@ -555,7 +584,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     "activations",
     [1],
     profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
-    build ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${fmt(seed.value)} at the median draw`, source: lossValueSource(training.loss) }], true) : null,
+    ledger ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${fmt(seed.value)} at the median draw`, source: lossValueSource(training.loss) }], true) : null,
   );
   if (training.loss.reduction === "sum") {
     p.hazards.push({
@@ -571,7 +600,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
       tensor: undefined,
     });
   }
-  const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], build);
+  const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], ledger);
   p.emit(
     build ? `${last.name}/activation-gradient` : "",
     last.name,
@@ -581,7 +610,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
     "gradients",
     batchShape(graph.batch, last.output),
     profileOf(seed.bulk.gradient, seed.bulk.elements),
-    build ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
+    ledger ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
   );
   if (seed.target !== undefined) {
     p.emit(
@@ -593,7 +622,7 @@ function runPhase(graph: Graph, spec: NetworkSpec, phase: "start" | "end", build
       "gradients",
       batchShape(graph.batch, last.output),
       profileOf(seed.target.gradient, seed.target.elements),
-      build ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
+      ledger ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
     );
     if (build) (p.tensors[p.tensors.length - 1] as PredictedTensor).partOf = `${last.name}/activation-gradient`;
   }
@@ -651,6 +680,8 @@ class PredictedTensor {
   // set on the few tensors that are part of another's array, so the others keep their shape
   declare partOf?: string;
   #node: LedgerNode | null;
+  #source: LedgerSource | null;
+  #index: number;
   #cached: LedgerEntry[] | undefined;
 
   /** `end` starts as the start profile; the end pass replaces it. */
@@ -664,6 +695,8 @@ class PredictedTensor {
     shape: number[],
     profile: MagnitudeProfile,
     ledger: LedgerNode | null,
+    source: LedgerSource | null,
+    index: number,
   ) {
     this.id = id;
     this.layer = layer;
@@ -677,12 +710,29 @@ class PredictedTensor {
     Object.defineProperty(this, "ledger", LEDGER_PROPERTY);
     this.source = "predicted";
     this.#node = ledger;
+    this.#source = source;
+    this.#index = index;
     this.#cached = undefined;
   }
 
   static ledgerOf(tensor: PredictedTensor): LedgerEntry[] {
-    tensor.#cached ??= materialise(tensor.#node, tensor.start);
+    if (tensor.#cached === undefined) {
+      const source = tensor.#source;
+      const node = source === null ? tensor.#node : PredictedTensor.nodeAt(source, tensor.#index);
+      tensor.#cached = materialise(node, tensor.start);
+    }
     return tensor.#cached;
+  }
+
+  /** The ledger node of the source's tensor at `index`, its start pass run again, once, with the nodes linked. */
+  private static nodeAt(source: LedgerSource, index: number): LedgerNode | null {
+    if (source.nodes === undefined) {
+      const tensors = runPhase(source.graph, source.spec, "start", true, source.lossScale).tensors;
+      source.nodes = tensors.map((t) => t.#node);
+    }
+    const nodes = source.nodes;
+    if (nodes.length <= index) throw new RangeError(`internal: the ledger pass has no tensor ${index}`);
+    return nodes[index] as LedgerNode | null;
   }
 
   static setLedger(tensor: PredictedTensor, value: LedgerEntry[]): void {
@@ -709,7 +759,9 @@ const LEDGER_PROPERTY: PropertyDescriptor = {
 export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions = {}): Prediction {
   const lossScale = options.lossScale ?? 1;
   if (!(lossScale > 0) || !Number.isFinite(lossScale)) throw new RangeError(`lossScale must be a finite number > 0, got ${lossScale}`);
-  const start = runPhase(graph, spec, "start", true, lossScale);
+  // the ledgers are left to a second start pass, run when one is first read: most callers read none, and linked
+  // ledger nodes (with their wording) would outlive the call beside every tensor
+  const start = runPhase(graph, spec, "start", true, lossScale, undefined, { graph, spec, lossScale, nodes: undefined });
   const end = runPhase(graph, spec, "end", false, lossScale, start.tensors);
   const tensors: TensorPrediction[] = start.tensors;
   // both passes visit the same operations in the same order; the start pass's sites are fresh objects, completed in place

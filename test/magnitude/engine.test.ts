@@ -80,6 +80,22 @@ describe("the prediction lists every tensor once", () => {
     }
   });
 
+  test("ledgers are worked out when first read, from the pass predicted: under a loss scale, last tensor first, they still add up to log2 of the rms", () => {
+    // the ledger pass runs again on demand; it must see the loss scale and emit the tensors in the same order
+    const p = run(smallTransformer(), 1024);
+    const gradient = p.tensors.filter((t) => t.role === "weight-gradient" && t.start.rms > 0);
+    expect(gradient.length).toBeGreaterThan(5);
+    for (const t of [...p.tensors].reverse()) {
+      if (!(t.start.rms > 0)) continue;
+      expect(t.ledger.reduce((a, e) => a + e.log2Factor, 0), t.id).toBeCloseTo(Math.log2(t.start.rms), 9);
+    }
+    // the loss scale's factor 2^10 sits in the loss seed's entry of every gradient's ledger (chain rule)
+    const unscaled = run(smallTransformer());
+    const first = gradient[0] as TensorPrediction;
+    const seed = (q: Prediction) => tensor(q, first.id).ledger.find((e) => e.layer === "loss")?.log2Factor ?? NaN;
+    expect(seed(p) - seed(unscaled)).toBeCloseTo(10, 9);
+  });
+
   test("ledgers survive a spread copy and JSON", () => {
     const t = tensor(run(smallTransformer()), "blocks.2.mlp.ff/activation:product");
     const copy = { ...t, source: "measured" as const };
