@@ -227,7 +227,9 @@ class Phase {
     }
   }
 
-  hazard(layer: GraphLayer, h: OpHazard): void {
+  /** `output`, `profile`, `elements`: a tensor's moments and the profile already made of them, for a site that shares them. */
+  hazard(layer: GraphLayer, h: OpHazard, output?: Signal, profile?: MagnitudeProfile, elements?: number): void {
+    const outputElements = h.outputElements ?? h.inputElements;
     // every site is created whole, in one key order (judge.ts's trainingSites too), so its readers see one layout
     const site: HazardSite = {
       kind: h.kind,
@@ -237,7 +239,7 @@ class Phase {
       guarded: h.guarded,
       constant: undefined,
       detail: this.build ? textOf(h.detail) : "",
-      output: h.output !== undefined ? profileOf(h.output, h.outputElements ?? h.inputElements) : undefined,
+      output: h.output === undefined ? undefined : h.output === output && outputElements === elements ? profile : profileOf(h.output, outputElements),
       end: undefined,
       tensor: undefined,
     };
@@ -291,8 +293,6 @@ class Phase {
       this.weightRecords(layer, prefix);
       const inner = result.inner;
       for (let i = 0; i < inner.length; i++) this.innerTensor(layer, prefix, inner[i] as InnerTensor, current);
-      const hazards = result.hazards;
-      for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard);
       current = chain(current, layer.name, result.factors, this.ledger);
       signal = result.output;
       // two features' covariance is carried through dense layers, activations, layer and RMS norms, dropout, residual
@@ -308,6 +308,11 @@ class Phase {
         delete signal.sharedLogVar;
       }
       if (RESETS.has(layer.family) || (layer.family === "activation" && signal.shape === "log-normal")) resets = true;
+      const elements = this.graph.batch * sampleElements(layer.output);
+      const profile = profileOf(signal, elements);
+      // a site whose output is the layer's own (a dense layer's sums) shares its profile: the same moments and count
+      const hazards = result.hazards;
+      for (let i = 0; i < hazards.length; i++) this.hazard(layer, hazards[i] as OpHazard, signal === result.output ? signal : undefined, profile, elements);
       this.emit(
         this.build ? prefix + result.role : "",
         layer.name,
@@ -316,7 +321,7 @@ class Phase {
         result.role,
         "activations",
         this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
-        profileOf(signal, this.graph.batch * sampleElements(layer.output)),
+        profile,
         current,
       );
     }
