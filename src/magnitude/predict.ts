@@ -142,7 +142,8 @@ class Phase {
     this.ctx = {
       batch: graph.batch,
       phase,
-      ledger: build,
+      ledger: build && source === null,
+      details: build,
       variance: (w) => this.endVariance.get(w) ?? w.variance * growth2,
       moments: activationMoments,
     };

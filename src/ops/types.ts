@@ -248,6 +248,11 @@ export interface OpContext {
    * NO_FACTORS and "" for its factors, hazard details and weight-gradient rules instead of making them as garbage
    */
   ledger: boolean;
+  /**
+   * whether this phase words its hazard details (the start pass, whose sites are reported); the ledger factors are
+   * left to `ledger`, which the start pass sets only when a ledger is read (src/magnitude/predict.ts)
+   */
+  details: boolean;
   /** variance of one element of a weight in this phase (initial variance × growth² at the end) */
   variance(weight: GraphWeight): number;
   /** memoised Gaussian expectations of an activation at input variance q */

@@ -26,7 +26,7 @@ function layerOf(spec: NetworkSpec, name: string): GraphLayer {
 }
 
 function context(batch: number): OpContext {
-  return { batch, phase: "start", ledger: true, variance: (w) => w.variance, moments: activationMoments };
+  return { batch, phase: "start", ledger: true, details: true, variance: (w) => w.variance, moments: activationMoments };
 }
 
 const signal = (q: number, positionCorrelation: number): Signal => ({ q, mean: 0, shared: 0, positionCorrelation, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true });

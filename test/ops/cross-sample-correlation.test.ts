@@ -33,7 +33,7 @@ function layerOf(spec: NetworkSpec, name: string): GraphLayer {
 }
 
 function context(batch: number): OpContext {
-  return { batch, phase: "start", ledger: false, variance: (w) => w.variance, moments: activationMoments };
+  return { batch, phase: "start", ledger: false, details: false, variance: (w) => w.variance, moments: activationMoments };
 }
 
 function weightVariance(layer: GraphLayer, name: string): number {

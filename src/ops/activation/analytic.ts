@@ -538,7 +538,7 @@ function softmaxForward(ctx: OpContext, layer: GraphLayer, input: Signal): Forwa
         inputElements: ctx.batch * sampleElements(layer.input),
         terms: n,
         guarded: true,
-        detail: ctx.ledger ? softmaxDetail(n) : "",
+        detail: ctx.details ? softmaxDetail(n) : "",
       },
     ],
     stash: { input, derivativeSecond: 0, derivativeMean: 0, derivativeZeroFraction: 0, kappaBackward: 2, derivativeCross: 0, derivativeCrossPosition: 0, allOff: 0, probabilityJacobian: Number.isFinite(jacobian) ? jacobian : second },

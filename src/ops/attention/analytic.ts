@@ -366,7 +366,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: matrixElements,
         terms: d,
         guarded: false,
-        detail: ctx.ledger
+        detail: ctx.details
           ? () =>
               spec.scaling === "logits"
                 ? `query·key summed over head width ${d} before the 1/√${d} scaling`
@@ -381,7 +381,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         inputElements: matrixElements,
         terms: P,
         guarded: spec.subtractMax,
-        detail: ctx.ledger ? () => `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}` : "",
+        detail: ctx.details ? () => `exp of attention logits over ${P} keys${spec.causal ? " (causal mask)" : ""}${spec.subtractMax ? ", row maximum subtracted" : ", row maximum NOT subtracted"}` : "",
       },
       {
         kind: "accumulation",
@@ -391,7 +391,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: projectionElements,
         terms: Math.round(rows.keys),
         guarded: false,
-        detail: ctx.ledger ? () => `probability-weighted values summed over ${fmt(rows.keys)} keys` : "",
+        detail: ctx.details ? () => `probability-weighted values summed over ${fmt(rows.keys)} keys` : "",
       },
       {
         kind: "accumulation",
@@ -401,7 +401,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         outputElements: ctx.batch * P * D,
         terms: inner,
         guarded: false,
-        detail: ctx.ledger ? () => `output projection summed over ${inner} inputs` : "",
+        detail: ctx.details ? () => `output projection summed over ${inner} inputs` : "",
       },
     ];
     return {

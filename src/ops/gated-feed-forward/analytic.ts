@@ -124,7 +124,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: hiddenElements,
           terms: D,
           guarded: false,
-          detail: ctx.ledger ? () => `gate and up projections summed over ${D} inputs` : "",
+          detail: ctx.details ? () => `gate and up projections summed over ${D} inputs` : "",
         },
         {
           kind: "accumulation",
@@ -134,7 +134,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
           outputElements: ctx.batch * P * D,
           terms: spec.hidden,
           guarded: false,
-          detail: ctx.ledger ? () => `down projection summed over ${spec.hidden} hidden units` : "",
+          detail: ctx.details ? () => `down projection summed over ${spec.hidden} hidden units` : "",
         },
       ],
       stash: {

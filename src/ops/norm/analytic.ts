@@ -132,7 +132,7 @@ export const normRule: AnalyticRule<NormStash> = {
           inputElements: ctx.batch * sampleElements(layer.input),
           terms,
           guarded: false,
-          detail: ctx.ledger ? () => `${layer.family} sums the squares of ${terms} elements per statistic` : "",
+          detail: ctx.details ? () => `${layer.family} sums the squares of ${terms} elements per statistic` : "",
         },
       ],
       stash,
