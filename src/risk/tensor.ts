@@ -18,6 +18,8 @@ import {
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
+import { settledAnyAbove, settledBelow, settledEnergyBelow } from "./settle.js";
+import { isEmpty, nonzeroElements } from "./laws.js";
 import { smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
@@ -272,7 +274,7 @@ function evaluate(
 ): TensorProfileRisk {
   if (!options.perTensorScaling) {
     evaluatedScaleLog2 = 0;
-    return withNoise(profileRisk(scaled, limits, stats), scaled, limits);
+    return settledRisk(scaled, limits, stats);
   }
   // the conversion scales the whole stored array by one factor, set from its largest elements
   const scaleLog2 = perTensorScaleLog2(arrayMax, limits.maxFinite);
@@ -280,13 +282,13 @@ function evaluate(
   // scaling is linear, so the statistics scale with it
   const rescaled: ProfileStatistics = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
   const stored = riskProfile(scaled, factor);
-  const risk = profileRisk(stored, limits, rescaled);
+  const risk = settledRisk(stored, limits, rescaled);
   evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
   // the subnormal noise under the per-tensor scale also where blocks take their own (as the subnormal share is): a block's
   // scale lifts its elements at least as far as the tensor's, so this bounds the block conversion's noise, but for
   // elements the tensor's scale would flush (which the flushed shares judge)
-  if (!block) return withNoise(risk, stored, limits);
+  if (!block) return risk;
   // each block of 32 follows its own maximum: flushing and clipping are those of the block rule (src/risk/blocks.ts).
   // The block conversion clamps a scaled element to ± the largest normal (OCP MX v1.0 §6 / Rouhani et al. 2023 Alg. 1,
   // from memory), so the top of a block's binade is clipped by at most 2^(emax+1)/max under either overflow mode; an
@@ -297,7 +299,7 @@ function evaluate(
   return {
     flushedFraction: Math.max(Math.min(risk.flushedFraction, block.flushedFraction), fractionBelow(scaled, floorLevel)),
     subnormalFraction: risk.subnormalFraction,
-    subnormalNoise: subnormalNoise(stored, limits),
+    subnormalNoise: risk.subnormalFraction === 0 ? subnormalNoise(stored, limits) : risk.subnormalNoise,
     flushedEnergy: Math.max(Math.min(risk.flushedEnergy, block.flushedEnergy), energyBelow(scaled, floorLevel)),
     overflowRisk: probabilityAnyAbove(scaled, block.scaleClampLevel),
     headroom: risk.headroom,
@@ -305,16 +307,49 @@ function evaluate(
   };
 }
 
-// the profile's risk numbers with the subnormal noise of the profile as stored, the keys in the order of TensorProfileRisk
-function withNoise(risk: ProfileRisk, stored: MagnitudeProfile, limits: RangeLimits): TensorProfileRisk {
+// the profile's risk numbers with the subnormal noise of the profile as stored, the keys in the order of TensorProfileRisk;
+// `settled`: a share of 0 may stand for one under SETTLED (src/risk/settle.ts), so the noise is taken all the same
+function withNoise(risk: ProfileRisk, stored: MagnitudeProfile, limits: RangeLimits, settled: boolean): TensorProfileRisk {
   return {
     flushedFraction: risk.flushedFraction,
     subnormalFraction: risk.subnormalFraction,
-    subnormalNoise: risk.subnormalFraction === 0 ? 0 : subnormalNoise(stored, limits),
+    subnormalNoise: risk.subnormalFraction === 0 && !settled ? 0 : subnormalNoise(stored, limits),
     flushedEnergy: risk.flushedEnergy,
     overflowRisk: risk.overflowRisk,
     headroom: risk.headroom,
     footroom: risk.footroom,
+  };
+}
+
+/**
+ * {@link profileRisk} with its subnormal noise ({@link withNoise}), each share and probability settled by a cheap bound
+ * where one decides it (src/risk/settle.ts: 0 under SETTLED, an overflow probability of 1 within SETTLED), so that only
+ * the numbers near a format's limits are integrated.
+ */
+function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: ProfileStatistics): TensorProfileRisk {
+  if (isEmpty(profile)) return withNoise(profileRisk(profile, limits, stats), profile, limits, false);
+  const flushBound = limits.flushBound;
+  // the larger threshold first: a share settled there is settled at the flush bound too
+  let belowNormal = flushBound >= limits.minNormal ? NaN : settledBelow(profile, limits.minNormal);
+  let flushedFraction = belowNormal === 0 ? 0 : settledBelow(profile, flushBound);
+  const settled = flushedFraction === 0;
+  if (flushedFraction !== flushedFraction) flushedFraction = fractionBelow(profile, flushBound);
+  if (flushBound >= limits.minNormal) belowNormal = flushedFraction;
+  else if (belowNormal !== belowNormal) belowNormal = fractionBelow(profile, limits.minNormal);
+  // the flushed elements are the smallest, so their share of the squared norm is at most their share of the elements
+  let flushedEnergy = settled ? 0 : settledEnergyBelow(profile, flushBound);
+  if (flushedEnergy !== flushedEnergy) flushedEnergy = energyBelow(profile, flushBound);
+  let overflowRisk = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
+  if (overflowRisk !== overflowRisk) overflowRisk = probabilityAnyAbove(profile, limits.overflowLevel);
+  const subnormalFraction = Math.max(0, belowNormal - flushedFraction);
+  return {
+    flushedFraction,
+    subnormalFraction,
+    subnormalNoise: subnormalFraction === 0 && !settled ? 0 : subnormalNoise(profile, limits),
+    flushedEnergy,
+    overflowRisk,
+    headroom: Math.log2(limits.maxFinite / stats.max),
+    footroom: Math.log2(stats.low / limits.smallest),
   };
 }
 

@@ -1,0 +1,97 @@
+/**
+ * Cheap bounds that settle a tensor's draw integrals (src/risk/profile.ts) before they are taken. Most tensors of a
+ * large check sit far from a format's limits: a share of elements or of the squared norm below the flush bound, or a
+ * probability of passing the overflow level, far under anything reported. A closed-form upper bound below
+ * {@link SETTLED} reports such a number as 0, within 1e-12 absolute of the integral (the accuracy README gives the
+ * shares); an overflow probability whose lower bound is above 1 − {@link SETTLED} is reported as 1. Only the Gaussian
+ * magnitude laws (gaussian, half-gaussian, bounded below its bound) are settled; every other case returns NaN and is
+ * integrated as before.
+ */
+import type { MagnitudeProfile } from "../magnitude/types.js";
+import { normalLogSf, normalSf } from "../numeric/normal.js";
+import { LN2 } from "./_math.js";
+
+/**
+ * A bound below this settles a number as 0 (and above 1 minus it as 1): a tenth of the 1e-12 absolute accuracy of the
+ * integrals, leaving room for the rule that evaluates them to differ from the exact draw integral the bound holds
+ * (a positive-weight rule on a grid of 1/8 standard deviation, within a factor 2 of the mass of any segment, as
+ * src/risk/bounds.ts takes it).
+ */
+export const SETTLED = 1e-13;
+
+// The draw beyond which the draws carry less than SETTLED/4 of the mass, Q(7.65) = 1.0e-14: past it an integrand is
+// at most 1 (an upper bound) or at least 0 (a lower one).
+const FAR_DRAW = 7.65;
+const LOG_FAR_SHARE = Math.log(SETTLED / 4);
+// √(2/π): P(|Z| ≤ a) = erf(a/√2) ≤ √(2/π)·a, and E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3 (the density at most φ(0) = 1/√(2π)
+// on both sides)
+const DENSITY = Math.sqrt(2 / Math.PI);
+const LOG_ENOUGH = Math.log(32);
+
+// Whether the profile's element law at threshold t is the Gaussian magnitude's for every draw: the shapes whose law
+// is erf/erfc of t/r (src/risk/laws.ts), with no bound at or below t (`strict`: a bound equal to t decides too).
+function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
+  const shape = profile.shape;
+  if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return false;
+  const bound = profile.bound;
+  return bound === undefined || !(bound > 0) || t < bound;
+}
+
+// E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), m ≥ 0, c > 0: with z* = ln(c)/m the point where c·e^{−m·z} = 1, it is
+// Φ(z*) + c·e^{m²/2}·Q(z* + m) (complete the square: e^{−m·z}·φ(z) = e^{m²/2}·φ(z + m)); NaN (unsettled) when the
+// first term alone is above SETTLED. Without a spread, min(1, c).
+function capBound(c: number, m: number): number {
+  if (!(c > 0)) return 0;
+  if (!(m > 0)) return Math.min(1, c);
+  const crossing = Math.log(c) / m;
+  if (crossing > -FAR_DRAW) return NaN;
+  return normalSf(-crossing) + Math.exp(Math.log(c) + (m * m) / 2 + normalLogSf(crossing + m));
+}
+
+/**
+ * 0 when the expected share of nonzero elements at or below t ({@link fractionBelow}) is provably under SETTLED,
+ * else NaN. Per draw r the share is erf(t/(r√2)) ≤ √(2/π)·t/r, with t/r = (t/rms)·e^{−S·ln2·z}.
+ */
+export function settledBelow(profile: MagnitudeProfile, t: number): number {
+  if (!gaussianAt(profile, t)) return NaN;
+  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  const bound = capBound((DENSITY * t) / profile.rms, spread * LN2);
+  return bound < SETTLED ? 0 : NaN;
+}
+
+/**
+ * 0 when the expected share of the squared norm at or below t ({@link energyBelow}) is provably under SETTLED, else
+ * NaN: per draw at most √(2/π)·(t/r)³/3.
+ */
+export function settledEnergyBelow(profile: MagnitudeProfile, t: number): number {
+  if (!gaussianAt(profile, t)) return NaN;
+  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  const a = t / profile.rms;
+  const bound = capBound((DENSITY / 3) * a * a * a, 3 * spread * LN2);
+  return bound < SETTLED ? 0 : NaN;
+}
+
+/**
+ * 0 or 1 when the probability that some of the n nonzero elements reach t in a step ({@link probabilityAnyAbove},
+ * both signs) is provably within SETTLED of it, else NaN. The integrand rises with the draw. Above: at most
+ * Q(z₀) + n·P(|Z| ≥ u₀) at z₀ = FAR_DRAW, u₀ the threshold in units of the scale drawn there, with
+ * P(|Z| ≥ u) ≤ e^{−u²/2} (Chernoff). Below: at least (1 − Q(z₀))·(1 − e^{−n·p₁}), p₁ = P(|Z| ≥ u₁) at −z₀, with
+ * P(|Z| ≥ u) ≥ 2φ(u)·u/(u² + 1) (Gordon's inequality, Gordon 1941, Ann. Math. Statist. 12(3); from memory) and
+ * P(|Z| ≥ u) ≥ 1 − √(2/π)·u (the density at most φ(0)), the larger of the two.
+ */
+export function settledAnyAbove(profile: MagnitudeProfile, t: number, n: number): number {
+  if (!gaussianAt(profile, t)) return NaN;
+  if (!(t > 0) || !(n > 0)) return NaN;
+  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  const a = t / profile.rms;
+  const far = spread * LN2 * FAR_DRAW;
+  const logN = Math.log(n);
+  // highest draw: the threshold's distance from the largest scale that matters
+  const high = a * Math.exp(-far);
+  if (logN - (high * high) / 2 < LOG_FAR_SHARE) return 0;
+  // lowest draw: even the smallest scale that matters passes t somewhere in the tensor, with near certainty
+  const low = a * Math.exp(far);
+  const logTail = Math.max(Math.log((2 * low) / (low * low + 1)) - (low * low) / 2 - 0.5 * Math.log(2 * Math.PI), Math.log1p(-Math.min(1, DENSITY * low)));
+  if (logN + logTail >= LOG_ENOUGH) return 1;
+  return NaN;
+}

@@ -1,0 +1,209 @@
+import { describe, expect, it } from "vitest";
+import * as fc from "fast-check";
+import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
+import { erfc, normalPdf } from "../../src/numeric/normal.js";
+import { FORMATS } from "../../src/formats/index.js";
+import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove, profileRisk, profileStatistics, rangeLimits } from "../../src/risk/profile.js";
+import { SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow } from "../../src/risk/settle.js";
+import { subnormalNoise } from "../../src/risk/subnormal-noise.js";
+import { riskProfile, tensorFormatRisk, tensorStatistics } from "../../src/risk/tensor.js";
+import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
+
+// The bounds of src/risk/settle.ts report a share or probability as 0 (or an overflow probability as 1) without its draw
+// integral. The bound they are held to: within 1e-12 absolute of the integral src/risk/profile.ts takes (README: the
+// shares are integrated to 1e-12 absolute below 1e-6), and of an independent fine quadrature of the exact draw integral
+// written here.
+
+// E_z[f(rms·2^(S·z))], z ~ N(0, 1): composite Simpson with step 1/64 on [−12, 12] (Abramowitz & Stegun 25.4.5), the
+// mass beyond ±12 (2e-33) left out
+function fineDraws(rms: number, spread: number, f: (r: number) => number): number {
+  if (!(spread > 0)) return f(rms);
+  const steps = 24 * 64;
+  let sum = 0;
+  for (let i = 0; i <= steps; i++) {
+    const z = -12 + i / 64;
+    const weight = i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2;
+    sum += weight * normalPdf(z) * f(rms * 2 ** (spread * z));
+  }
+  return (sum / 64) / 3;
+}
+
+// The Gaussian magnitude law (SCIENCE.md §4 of the team's notes; P(|Z| ≤ a) = erf(a/√2), A&S 7.1.1 and 26.2.29) with
+// src/numeric's erfc (Cody's rational approximations, W. J. Cody 1969), accurate relative to its size in the tail
+const below = (r: number, t: number): number => 1 - erfc(t / (r * Math.SQRT2));
+const above = (r: number, t: number): number => erfc(t / (r * Math.SQRT2));
+// E[Z²; |Z| ≤ a] = erf(a/√2) − 2aφ(a) (integration by parts), by its series below a = 1 to keep the digits of a tiny share
+function energy(r: number, t: number): number {
+  const a = t / r;
+  if (a >= 1) return below(r, t) - 2 * a * normalPdf(a);
+  let sum = 0;
+  let coefficient = 1;
+  for (let k = 0; k < 60; k++) {
+    const term = (coefficient * a ** (2 * k + 3)) / (2 * k + 3);
+    sum += term;
+    if (Math.abs(term) < 1e-20 * Math.abs(sum)) break;
+    coefficient *= -0.5 / (k + 1);
+  }
+  return 2 * normalPdf(0) * sum;
+}
+// 1 − (1 − p)^n without cancellation
+const anyOf = (p: number, n: number): number => (p >= 1 ? 1 : -Math.expm1(n * Math.log1p(-p)));
+
+const gaussianShapes = ["gaussian", "half-gaussian", "bounded"] as const;
+
+const profiles = fc
+  .record({
+    shape: fc.constantFrom(...gaussianShapes),
+    log2Rms: fc.double({ min: -60, max: 60, noNaN: true }),
+    // no spread, or one of at least 1e-3 binade (the draw rule of src/risk/laws.ts is not made for subnormal spreads)
+    spread: fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 4.5, noNaN: true })),
+    log2Count: fc.double({ min: 0, max: 24, noNaN: true }),
+    zeroFraction: fc.oneof(fc.constant(0), fc.double({ min: 0, max: 0.9, noNaN: true })),
+    // the bound in binades above the rms (none: −1)
+    boundAbove: fc.oneof(fc.constant(-1), fc.double({ min: 0, max: 30, noNaN: true })),
+    // the threshold in binades from the rms: far from it in both directions, where the bounds settle
+    log2Ratio: fc.double({ min: -45, max: 45, noNaN: true }),
+  })
+  .map((x) => {
+    const rms = 2 ** x.log2Rms;
+    const profile: MagnitudeProfile = {
+      elements: Math.floor(2 ** x.log2Count),
+      zeroFraction: x.zeroFraction,
+      shape: x.shape,
+      rms,
+      log2Spread: x.spread,
+      bound: x.boundAbove >= 0 ? rms * 2 ** x.boundAbove : undefined,
+    };
+    return { profile, t: rms * 2 ** x.log2Ratio };
+  });
+
+describe("settled shares and probabilities (src/risk/settle.ts)", () => {
+  it("are within 1e-12 of the draw integrals of src/risk/profile.ts, and settle a good share of far thresholds", () => {
+    let settled = 0;
+    let ones = 0;
+    fc.assert(
+      fc.property(profiles, ({ profile, t }) => {
+        const n = nonzeroElements(profile);
+        if (!(n > 0)) return;
+        const share = settledBelow(profile, t);
+        if (!Number.isNaN(share)) {
+          settled++;
+          expect(share).toBe(0);
+          expect(fractionBelow(profile, t)).toBeLessThanOrEqual(1e-12);
+        }
+        const energyShare = settledEnergyBelow(profile, t);
+        if (!Number.isNaN(energyShare)) {
+          settled++;
+          expect(energyShare).toBe(0);
+          expect(energyBelow(profile, t)).toBeLessThanOrEqual(1e-12);
+        }
+        const overflow = settledAnyAbove(profile, t, n);
+        if (!Number.isNaN(overflow)) {
+          settled++;
+          if (overflow === 1) ones++;
+          expect(Math.abs(probabilityAnyAbove(profile, t) - overflow)).toBeLessThanOrEqual(1e-12);
+        }
+      }),
+      { numRuns: 4000 },
+    );
+    // not a vacuous property: a good part of the far thresholds are settled, the certain overflows too
+    expect(settled).toBeGreaterThan(300);
+    expect(ones).toBeGreaterThan(50);
+  });
+
+  it("are within SETTLED of an independent fine quadrature of the exact draw integral", () => {
+    let settled = 0;
+    fc.assert(
+      fc.property(profiles, ({ profile, t }) => {
+        const n = nonzeroElements(profile);
+        const bound = profile.bound;
+        if (!(n > 0) || (bound !== undefined && t >= bound)) return;
+        const { rms, log2Spread } = profile;
+        if (settledBelow(profile, t) === 0) {
+          settled++;
+          expect(fineDraws(rms, log2Spread, (r) => below(r, t))).toBeLessThan(SETTLED);
+        }
+        if (settledEnergyBelow(profile, t) === 0) {
+          settled++;
+          expect(fineDraws(rms, log2Spread, (r) => energy(r, t))).toBeLessThan(SETTLED);
+        }
+        const overflow = settledAnyAbove(profile, t, n);
+        if (!Number.isNaN(overflow)) {
+          settled++;
+          expect(Math.abs(fineDraws(rms, log2Spread, (r) => anyOf(above(r, t), n)) - overflow)).toBeLessThan(SETTLED);
+        }
+      }),
+      { numRuns: 400 },
+    );
+    expect(settled).toBeGreaterThan(30);
+  });
+
+  it("settle nothing for the laws they do not bound, nor at or past a bound", () => {
+    const base = { elements: 4096, zeroFraction: 0, rms: 1, log2Spread: 1 };
+    const far = [2 ** -60, 2 ** 60];
+    for (const t of far) {
+      for (const profile of [
+        { ...base, shape: "uniform" },
+        { ...base, shape: "constant" },
+        { ...base, shape: "log-normal", elementLog2Spread: 2 },
+        { ...base, shape: "log-normal" },
+      ] as MagnitudeProfile[]) {
+        expect(settledBelow(profile, t)).toBeNaN();
+        expect(settledEnergyBelow(profile, t)).toBeNaN();
+        expect(settledAnyAbove(profile, t, 4096)).toBeNaN();
+      }
+      const capped: MagnitudeProfile = { ...base, shape: "gaussian", bound: t };
+      expect(settledBelow(capped, t)).toBeNaN();
+      expect(settledEnergyBelow(capped, t)).toBeNaN();
+    }
+    // far from the rms a Gaussian is settled at once: the check that the cases above are refused, not missed
+    const gaussian: MagnitudeProfile = { ...base, shape: "gaussian" };
+    expect(settledBelow(gaussian, 2 ** -60)).toBe(0);
+    expect(settledAnyAbove(gaussian, 2 ** 60, 4096)).toBe(0);
+    expect(settledAnyAbove(gaussian, 2 ** -60, 4096)).toBe(1);
+  });
+});
+
+describe("a tensor's risk numbers with the settled shares", () => {
+  // what tensorFormatRisk gave before the bounds: profileRisk's integrals, and the subnormal noise where the share is nonzero
+  function reference(profile: MagnitudeProfile, format: "binary16" | "bfloat16" | "e5m2") {
+    const limits = rangeLimits(FORMATS[format], { saturate: false, flushSubnormals: false });
+    const risk = profileRisk(profile, limits, profileStatistics(profile, DEFAULT_THRESHOLDS));
+    return { limits, risk, noise: risk.subnormalFraction === 0 ? 0 : subnormalNoise(profile, limits) };
+  }
+  const close = (actual: number, expected: number): boolean =>
+    Math.abs(actual - expected) <= 1e-12 || Math.abs(actual - expected) <= 1e-6 * Math.abs(expected);
+
+  it("keep every number within 1e-12 absolute (1e-6 relative) of the integrals, in binary16, bfloat16 and e5m2", () => {
+    // tensors whose numbers the bounds settled (not bit for bit the integrals'): the fast path was taken
+    let settled = 0;
+    fc.assert(
+      fc.property(
+        profiles,
+        fc.constantFrom("binary16" as const, "bfloat16" as const, "e5m2" as const),
+        fc.double({ min: -30, max: 30, noNaN: true }),
+        ({ profile }, format, shift) => {
+          const start = riskProfile(profile, 2 ** shift);
+          const tensor = { id: "t", role: "activation", start, end: start } as unknown as TensorPrediction;
+          const statistics = tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS);
+          const { limits, risk, noise } = reference(start, format);
+          const judged = tensorFormatRisk(tensor, limits, statistics, {
+            judged: true,
+            perTensorScaling: false,
+            thresholds: DEFAULT_THRESHOLDS,
+          }).start;
+          expect(close(judged.flushedFraction, risk.flushedFraction)).toBe(true);
+          expect(close(judged.subnormalFraction, risk.subnormalFraction)).toBe(true);
+          expect(close(judged.flushedEnergy, risk.flushedEnergy)).toBe(true);
+          expect(close(judged.overflowRisk, risk.overflowRisk)).toBe(true);
+          expect(close(judged.subnormalNoise, noise)).toBe(true);
+          expect(judged.headroom).toBe(risk.headroom);
+          expect(judged.footroom).toBe(risk.footroom);
+          if (judged.flushedFraction !== risk.flushedFraction || judged.flushedEnergy !== risk.flushedEnergy || judged.overflowRisk !== risk.overflowRisk) settled++;
+        },
+      ),
+      { numRuns: 1500 },
+    );
+    expect(settled).toBeGreaterThan(100);
+  });
+});
