@@ -6,6 +6,7 @@ import { check, type CheckAnswer, type MeasuredNetwork } from "./check.js";
 import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import { VERDICT_RANK, type AppliedLossScale, type CheckResult, type Verdict } from "./risk/index.js";
+import { gradientSumFormat } from "./spec/normalize.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import { OPTIMIZER_THRESHOLDS, type OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
@@ -28,18 +29,19 @@ export const ALL_BINARY32_PLAN: PrecisionPlan = {
  * The plans `headroom compare` evaluates when the spec names none of its own (our own names):
  * all binary32; binary16 storage with a binary32 master copy and a loss scale; bfloat16 storage with a binary32
  * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
- * factors (Micikevicius et al. 2022) and a binary32 master copy.
+ * factors (Micikevicius et al. 2022) and a binary32 master copy, its gradients summed across workers and steps in a
+ * binary32 buffer (8-bit recipes keep the all-reduce and accumulation wider than e5m2; common practice, from memory).
  */
 export const STANDARD_PLANS: readonly PrecisionPlan[] = [
   ALL_BINARY32_PLAN,
   { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32" },
   { ...base, name: "bfloat16 with master copy", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", flushSubnormals: true },
   { ...base, name: "bfloat16 only", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "bfloat16", masterWeights: "none", accumulate: "binary32", flushSubnormals: true },
-  { ...base, name: "8-bit with scale factors", activations: "e4m3", weights: "e4m3", gradients: "e5m2", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", scaling: "tensor" },
+  { ...base, name: "8-bit with scale factors", activations: "e4m3", weights: "e4m3", gradients: "e5m2", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", gradientSums: "binary32", scaling: "tensor" },
 ];
 
 export interface PlanCost {
-  /** weights + master copy + gradients + optimizer states, per parameter (block scale bytes included) */
+  /** weights + master copy + gradients (+ a gradient-sum buffer in another format) + optimizer states, per parameter (block scale bytes included) */
   bytesPerParameter: number;
   /** stored activations, per element (block scale bytes included) */
   bytesPerActivation: number;
@@ -129,12 +131,18 @@ function elementBytes(plan: PrecisionPlan, name: string): { bytes: number; scale
   return { bytes: format.bytes + scale, scale };
 }
 
+function separateSumBuffer(spec: NetworkSpec, plan: PrecisionPlan): boolean {
+  return gradientSumFormat(plan) !== plan.gradients && (spec.training.workers > 1 || spec.training.accumulationSteps > 1);
+}
+
 export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckResult): PlanCost {
   const states = statesPerParameter(spec.training.optimizer.kind);
   const parts = [
     { count: 1, ...elementBytes(plan, plan.weights) },
     { count: plan.masterWeights === "none" ? 0 : 1, ...elementBytes(plan, plan.masterWeights === "none" ? plan.weights : plan.masterWeights) },
     { count: 1, ...elementBytes(plan, plan.gradients) },
+    // a sum buffer of its own when the plan sums gradients in another format and there is more than one contribution
+    { count: separateSumBuffer(spec, plan) ? 1 : 0, ...elementBytes(plan, gradientSumFormat(plan)) },
     { count: states, ...elementBytes(plan, plan.optimizerStates) },
   ];
   const bytesPerParameter = parts.reduce((sum, p) => sum + p.count * p.bytes, 0);
@@ -247,7 +255,8 @@ function sameStoredFormats(a: PrecisionPlan, b: PrecisionPlan): boolean {
     a.weights === b.weights &&
     a.gradients === b.gradients &&
     a.optimizerStates === b.optimizerStates &&
-    a.masterWeights === b.masterWeights
+    a.masterWeights === b.masterWeights &&
+    gradientSumFormat(a) === gradientSumFormat(b)
   );
 }
 
@@ -315,7 +324,7 @@ export function findingCounts(result: CheckAnswer): FindingCounts {
 // every stored tensor and the accumulation in binary32 or wider: no narrower format is involved
 function allBinary32OrWider(plan: PrecisionPlan): boolean {
   const binary32 = getFormat("binary32");
-  return [plan.activations, plan.weights, plan.gradients, plan.optimizerStates, plan.accumulate, plan.masterWeights]
+  return [plan.activations, plan.weights, plan.gradients, plan.optimizerStates, plan.accumulate, gradientSumFormat(plan), plan.masterWeights]
     .filter((f) => f !== "none")
     .every((f) => getFormat(f).precision >= binary32.precision && getFormat(f).exponentBits >= binary32.exponentBits);
 }

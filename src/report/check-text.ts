@@ -12,6 +12,7 @@ import { planSettings } from "./plan-settings.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { PLAN_ENTRY_WORDS } from "./summary.js";
+import { gradientSumFormat } from "../spec/normalize.js";
 import { renderTable, type Cell } from "./table.js";
 
 /** Options of {@link renderCheckText}. */
@@ -89,6 +90,8 @@ export function describePlan(plan: PrecisionPlan): string {
     `master weights ${plan.masterWeights}`,
     `accumulation ${plan.accumulate}`,
   ];
+  // said only where it differs: by default gradients are summed in their own format
+  if (gradientSumFormat(plan) !== plan.gradients) parts.push(`gradient sums ${gradientSumFormat(plan)}`);
   const settings = planSettings(plan);
   return parts.join(", ") + (settings === "" ? "" : `; ${settings}`);
 }

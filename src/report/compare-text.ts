@@ -48,7 +48,7 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
   out += style.role(
     "muted",
     wrap(
-      "per parameter: weights, master copy, gradients and optimizer states; memory: the spec's parameters plus one step's stored activations " +
+      "per parameter: weights, master copy, gradients (and a sum buffer where gradients are summed in another format) and optimizer states; memory: the spec's parameters plus one step's stored activations " +
         `(block-scaled 8-bit tensors also hold one scale byte per ${MX_BLOCK.size} elements; a per-tensor scale, one number per tensor, is not counted); ` +
         `saved: against ${comparison.baseline.name} (every tensor in binary32, no master copy: ${formatBytes(comparison.baseline.bytes)}).`,
       width,

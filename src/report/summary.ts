@@ -17,6 +17,7 @@ export const PLAN_ENTRY_WORDS = {
   gradients: "gradients",
   optimizerStates: "optimizer states",
   accumulate: "accumulation",
+  gradientSums: "gradient sums",
 } as const satisfies Record<PlanEntry, string>;
 
 /** How each kind of finding is named in a row, and what its number measures. */

@@ -20,6 +20,8 @@ import { distinctNumbers, limitNumber, plainNumber, probabilityWords, scaleWords
 export interface HazardContext {
   activations: RangeLimits;
   gradients: RangeLimits;
+  /** the buffer the gradient contributions of workers and accumulation steps are summed in (the plan's gradient-sums) */
+  gradientSums: RangeLimits;
   optimizerStates: RangeLimits;
   accumulate: RangeLimits;
   /** the static loss scale multiplying the loss (1 when none) */
@@ -381,15 +383,17 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       );
     case GRADIENT_SUM_ERROR: {
       const terms = Math.max(1, site.terms);
+      const sums = context.gradientSums;
+      const which = sums.format === context.gradients.format ? "the gradient format" : "the plan's gradient-sums format";
       const said =
-        `Summed in ${format}, the gradient format, the ${terms} gradient contributions of ${gradientOf(site)} carry a relative ` +
+        `Summed in ${format}, ${which}, the ${terms} gradient contributions of ${gradientOf(site)} carry a relative ` +
         `rounding error of about √n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
       if (verdict === "fits") return `${said}.`;
       // the most contributions whose √n·u stays within the at-risk threshold: n ≤ (threshold/u)²
-      const most = Math.floor((context.thresholds.accumulationAtRisk / context.gradients.unitRoundoff) ** 2);
+      const most = Math.floor((context.thresholds.accumulationAtRisk / sums.unitRoundoff) ** 2);
       const remedies = [
-        // the sum's running total sits in the gradient buffer, so the plan's gradients entry is what changes it
-        context.gradients.unitRoundoff > FORMATS.binary32.unitRoundoff ? "hold the gradients the contributions are summed into in binary32 (`gradients: binary32`)" : "",
+        // a binary32 sum buffer: the gradients themselves stay in their format
+        sums.unitRoundoff > FORMATS.binary32.unitRoundoff ? "sum them in binary32 (`gradient-sums: binary32` in the plan)" : "",
         most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
       ].filter((x) => x !== "");
       return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
@@ -605,7 +609,8 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
 // then moves the scale with the values (exactly for a power of two; within the binade the scale is floored to otherwise)
 // instead of pushing them under the flush bound, and the sum overflows only as often as the scale rule clips.
 function gradientSum(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
-  const limits = context.gradients;
+  // the running total, and each worker's share before it, sit in the sum buffer
+  const limits = context.gradientSums;
   const t = context.thresholds;
   const terms = Math.max(1, site.terms);
   const format = FORMATS[limits.format];
@@ -638,8 +643,7 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
     putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
-  // The sum's own rounding error, judged as an accumulation is (sumRoundingError): held in the gradient format, as the
-  // plan names no other for it
+  // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   putGraded(list, limits, "gradients", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
 }

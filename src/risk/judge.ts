@@ -15,6 +15,7 @@ import type {
   TensorPrediction,
   TensorRole,
 } from "../magnitude/types.js";
+import { gradientSumFormat } from "../spec/normalize.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
@@ -54,9 +55,9 @@ export interface CheckOptions {
 }
 
 /** The plan entries a format can hold. */
-export type PlanEntry = PlanSlot | "accumulate";
+export type PlanEntry = PlanSlot | "accumulate" | "gradientSums";
 
-const PLAN_ENTRIES: readonly PlanEntry[] = ["activations", "weights", "gradients", "optimizerStates", "accumulate"];
+const PLAN_ENTRIES: readonly PlanEntry[] = ["activations", "weights", "gradients", "optimizerStates", "accumulate", "gradientSums"];
 
 /** The judgement of one format. */
 export interface FormatCheck {
@@ -178,7 +179,7 @@ function isReduced(format: Format): boolean {
 }
 
 function entryFormat(plan: PrecisionPlan, entry: PlanEntry): FormatName {
-  return plan[entry];
+  return entry === "gradientSums" ? gradientSumFormat(plan) : plan[entry];
 }
 
 /**
@@ -191,7 +192,8 @@ export function planFor(plan: PrecisionPlan, format: FormatName): PrecisionPlan 
   const reduced = PLAN_ENTRIES.filter((entry) => isReduced(FORMATS[entryFormat(plan, entry)]));
   const replaced: readonly PlanEntry[] = reduced.length > 0 ? reduced : ["activations", "weights", "gradients"];
   const result: PrecisionPlan = { ...plan };
-  for (const entry of replaced) result[entry] = format;
+  // a plan naming no sum format keeps none: its sums follow the gradients wherever they go
+  for (const entry of replaced) if (entry !== "gradientSums" || plan.gradientSums !== undefined) result[entry] = format;
   // scale factors apply to 8-bit formats only, so a plan that holds none has made no choice about them: an 8-bit format
   // put in its place takes the default of a spec that names one (per-tensor, src/spec/normalize.ts), as the same plan
   // written with that format would
@@ -323,9 +325,10 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
     hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
   }
   const formatChecks: FormatCheck[] = [];
+  const sums = spec.training.workers > 1 || spec.training.accumulationSteps > 1;
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
-    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards, scales[i] === lossScale ? undefined : scales[i]);
+    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards, scales[i] === lossScale ? undefined : scales[i], sums);
     verdict = worseVerdict(verdict, formatCheck.verdict);
     formatChecks.push(formatCheck);
   }
@@ -668,6 +671,7 @@ function judgeFormat(
   tensors: readonly TensorCheck[],
   hazards: readonly HazardCheck[],
   ownScale: AppliedLossScale | undefined,
+  sums: boolean,
 ): FormatCheck {
   const { format, evaluated } = setting;
   const findings: Finding[] = [];
@@ -694,7 +698,8 @@ function judgeFormat(
   const holds: PlanEntry[] = [];
   for (let i = 0; i < PLAN_ENTRIES.length; i++) {
     const entry = PLAN_ENTRIES[i] as PlanEntry;
-    if (entryFormat(evaluated, entry) === format) holds.push(entry);
+    // a sum buffer exists only where contributions are summed (several workers or accumulation steps)
+    if (entryFormat(evaluated, entry) === format && (entry !== "gradientSums" || sums)) holds.push(entry);
   }
   return {
     format,
@@ -725,6 +730,7 @@ function hazardContext(
   return {
     activations: limitsFor(plan, plan.activations),
     gradients: limitsFor(plan, plan.gradients),
+    gradientSums: limitsFor(plan, gradientSumFormat(plan)),
     optimizerStates: limitsFor(plan, plan.optimizerStates),
     accumulate: limitsFor(plan, plan.accumulate),
     lossScale,
@@ -901,7 +907,7 @@ function checkAssumptions(
   for (let i = 0; i < settings.length; i++) {
     const { format, evaluated } = settings[i] as FormatSetting;
     if (evaluated !== plan) {
-      const held = PLAN_ENTRIES.filter((entry) => evaluated[entry] === format);
+      const held = PLAN_ENTRIES.filter((entry) => entryFormat(evaluated, entry) === format);
       notes.push(`${format} is not in the plan; it is judged holding ${held.join(", ")} in place of the plan's formats.`);
     }
   }

@@ -216,6 +216,11 @@ const STORAGE_BITS: Record<FormatName, number> = {
   e4m3: 8,
 };
 
+/** The format a plan sums gradient contributions in (workers, accumulation steps): its `gradientSums`, else its gradients'. */
+export function gradientSumFormat(plan: Pick<PrecisionPlan, "gradients" | "gradientSums">): FormatName {
+  return plan.gradientSums ?? plan.gradients;
+}
+
 /** The name of the plan a spec evaluates when its `precision` gives none. */
 export const DEFAULT_PLAN_NAME = "planned";
 
@@ -241,6 +246,8 @@ function normalizePlan(raw: RawPlan | undefined, fallbackName: string): Precisio
     scaling: raw?.scaling ?? (uses8bit ? "tensor" : "none"),
   };
   if (raw?.["loss-scale"] !== undefined) plan.lossScale = raw["loss-scale"];
+  // absent, the sums follow the gradient format (also in a plan copied with other gradients): set only when named
+  if (raw?.["gradient-sums"] !== undefined) plan.gradientSums = raw["gradient-sums"];
   return plan;
 }
 

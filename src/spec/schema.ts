@@ -474,6 +474,9 @@ function buildSchemas(z: typeof Zod) {
       .describe("The master copy the optimizer updates, or none (default binary32 when weights are narrower, else none)")
       .optional(),
     accumulate: format("Accumulate format of matrix products and reductions (default binary32)").optional(),
+    "gradient-sums": format(
+      "Format of the buffer the gradients of workers and accumulation steps are summed in (default: as gradients)",
+    ).optional(),
     "loss-scale": positive("A static loss scale to evaluate, a power of two (absent: headroom recommends one)").optional(),
     overflow: z
       .enum(OVERFLOW_MODES)

@@ -234,6 +234,11 @@ export interface PrecisionPlan {
   masterWeights: FormatName | "none";
   /** accumulate format of matrix products and reductions */
   accumulate: FormatName;
+  /**
+   * the format of the buffer the gradient contributions of workers and accumulation steps are summed in (an all-reduce
+   * or accumulation buffer); absent: the gradient format (`gradientSumFormat`), whatever the gradients are
+   */
+  gradientSums?: FormatName;
   /** a static loss scale to evaluate (a power of two); absent: headroom recommends one */
   lossScale?: number;
   /** what 8-bit conversions do on overflow */

@@ -411,6 +411,7 @@ const PLAN_KEYS = keys(
   "optimizer-states",
   "master-weights",
   "accumulate",
+  "gradient-sums",
   "loss-scale",
   "overflow",
   "flush-subnormals",
@@ -430,6 +431,7 @@ function plan(value: unknown, named: boolean): Data {
   optional(out, raw, "optimizer-states", format);
   optional(out, raw, "master-weights", masterFormat);
   optional(out, raw, "accumulate", format);
+  optional(out, raw, "gradient-sums", format);
   optional(out, raw, "loss-scale", positive);
   withDefault(out, raw, "overflow", OVERFLOW, "saturate");
   withDefault(out, raw, "flush-subnormals", boolean, false);

@@ -51,7 +51,7 @@ describe("the rounding error of a gradient sum", () => {
     expect(finding?.threshold).toBe(0.1);
     expect(evaluation?.sentence).toBe(
       "Summed in bfloat16, the gradient format, the 4096 gradient contributions of reader/weight-gradient carry a relative " +
-        "rounding error of about √n·u = 0.25 (fails): hold the gradients the contributions are summed into in binary32 (`gradients: binary32`), or sum at most 6 contributions " +
+        "rounding error of about √n·u = 0.25 (fails): sum them in binary32 (`gradient-sums: binary32` in the plan), or sum at most 6 contributions " +
         "(fewer accumulation steps or workers).",
     );
   });

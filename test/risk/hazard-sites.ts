@@ -1,5 +1,5 @@
 // The site, context and profile the operation-hazard tests build: a plan in binary16 with binary32 states and
-// accumulation, one worker, unit-rms Gaussian inputs, each field open to a test's own value.
+// accumulation, gradients summed in their own format, one worker, unit-rms Gaussian inputs, each field open to a test's own value.
 import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
 import { DEFAULT_THRESHOLDS, type HazardContext } from "../../src/risk/index.js";
 import { BINARY16, BINARY32 } from "./limits.js";
@@ -20,6 +20,8 @@ export function context(partial: Partial<HazardContext> = {}): HazardContext {
     workers: 1,
     thresholds: DEFAULT_THRESHOLDS,
     ...partial,
+    // summed in the gradient format unless a test names another, as a plan without gradient-sums is
+    gradientSums: partial.gradientSums ?? partial.gradients ?? BINARY16,
   };
 }
 

@@ -161,6 +161,7 @@ describe("judgePrediction", () => {
           {
             activations: limitsFor(plan, plan.activations),
             gradients: limitsFor(plan, plan.gradients),
+            gradientSums: limitsFor(plan, plan.gradientSums ?? plan.gradients),
             optimizerStates: limitsFor(plan, plan.optimizerStates),
             accumulate: limitsFor(plan, plan.accumulate),
             lossScale: 8,
