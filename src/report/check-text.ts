@@ -12,7 +12,6 @@ import { planSettings } from "./plan-settings.js";
 import { formatBinades, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { PLAN_ENTRY_WORDS } from "./summary.js";
-import { gradientSumFormat } from "../spec/normalize.js";
 import { renderTable, type Cell } from "./table.js";
 
 /** Options of {@link renderCheckText}. */
@@ -91,7 +90,7 @@ export function describePlan(plan: PrecisionPlan): string {
     `accumulation ${plan.accumulate}`,
   ];
   // said only where it differs: by default gradients are summed in their own format
-  if (gradientSumFormat(plan) !== plan.gradients) parts.push(`gradient sums ${gradientSumFormat(plan)}`);
+  if (plan.gradientSums !== undefined && plan.gradientSums !== plan.gradients) parts.push(`gradient sums ${plan.gradientSums}`);
   const settings = planSettings(plan);
   return parts.join(", ") + (settings === "" ? "" : `; ${settings}`);
 }
