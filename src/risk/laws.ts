@@ -439,6 +439,15 @@ export function lawOverDraws(profile: MagnitudeProfile, measure: "any-above" | "
 }
 
 /**
+ * The Gaussian share below t (`measure` "below") or of the energy below it over draws, read off the shared rows at
+ * x = log2(t/rms): {@link lawOverDraws}' value for a profile whose law at t is the Gaussian's for every draw (no bound
+ * at or below t), or NaN where the rows do not serve it (lawOverDraws then takes the rule).
+ */
+export function gaussianRowsOverDraws(measure: "below" | "energy-below", x: number, spread: number): number {
+  return gaussianTableValue(measure === "below" ? BELOW : ENERGY_BELOW, spread, x);
+}
+
+/**
  * {@link lawOverDraws} by the draw rule itself, without the shared rows of the Gaussian shares: the direct
  * method the rows' interpolation is held to in the tests (the any-above sums are lawOverDraws' own).
  */

@@ -4,7 +4,16 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile, hashSlot, hashWords } from "./_math.js";
-import { isConstantLike, isEmpty, nonzeroElements, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, lawMixtureCrossing, lawOverDraws } from "./laws.js";
+import {
+  isConstantLike,
+  isEmpty,
+  nonzeroElements,
+  gaussianBelowOverDraws,
+  gaussianEnergyBelowOverDraws,
+  gaussianRowsOverDraws,
+  lawMixtureCrossing,
+  lawOverDraws,
+} from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
 /** Probability levels at which the predicted largest and smallest magnitudes are read. */
@@ -74,6 +83,9 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
   if (gaussianBelowBound(profile, t)) {
     const closed = gaussianBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
+    // read off the shared rows for less than the draw table's look-up costs (the same value lawOverDraws gives)
+    const rows = gaussianRowsOverDraws("below", Math.log2(t) - Math.log2(profile.rms), profile.log2Spread);
+    if (!Number.isNaN(rows)) return rows;
   }
   return drawIntegral(profile, BELOW, t);
 }
@@ -96,6 +108,8 @@ export function energyBelow(profile: MagnitudeProfile, t: number): number {
   if (gaussianBelowBound(profile, t)) {
     const closed = gaussianEnergyBelowOverDraws(t / profile.rms, profile.log2Spread);
     if (!Number.isNaN(closed)) return closed;
+    const rows = gaussianRowsOverDraws("energy-below", Math.log2(t) - Math.log2(profile.rms), profile.log2Spread);
+    if (!Number.isNaN(rows)) return rows;
   }
   return drawIntegral(profile, ENERGY_BELOW, t);
 }

@@ -4,6 +4,7 @@ import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 // erf and erfc accurate to about 1e-15 relative, held to mpmath 1.3.0 in test/numeric/normal.test.ts
 import { erf, erfc, normalPdf } from "../../src/numeric/normal.js";
 import { directLawOverDraws, gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, lawMixtureCrossing, lawOverDraws } from "../../src/risk/laws.js";
+import { energyBelow, fractionBelow } from "../../src/risk/profile.js";
 
 // The Gaussian shares below and energy below over draws are read off rows of the draw integral summed in binades
 // (laws.ts, "Shared tables of the Gaussian shares"), for spreads 0.25 to 8. Held here to the integral itself, summed by
@@ -171,6 +172,31 @@ describe("the Gaussian shares read off the binade rows", () => {
         expect(Math.abs(level - (m + fraction) * step)).toBeLessThan(1e-6);
       }),
       { numRuns: 300 },
+    );
+  });
+
+  // fractionBelow and energyBelow read the rows without the draw table's look-up: the same value lawOverDraws gives,
+  // bit for bit, with or without a bound (at, above or below the threshold) and with or without a spread
+  it("give fractionBelow and energyBelow the values of lawOverDraws exactly", () => {
+    fc.assert(
+      fc.property(
+        fc.constantFrom(...shapes),
+        fc.double({ min: 0, max: 9, noNaN: true }),
+        fc.double({ min: -1.3, max: 1, noNaN: true }),
+        fc.double({ min: -3, max: 3, noNaN: true }),
+        fc.double({ min: -30, max: 10, noNaN: true }),
+        fc.double({ min: -2, max: 12, noNaN: true }),
+        (shape, log2Spread, position, offset, rmsLog2, boundLog2) => {
+          const profile: MagnitudeProfile = { elements: 1000, zeroFraction: 0.5, shape, rms: 2 ** rmsLog2, log2Spread };
+          if (shape === "bounded") profile.bound = profile.rms * 2 ** boundLog2;
+          const x = position * 9 * log2Spread + offset;
+          const t = profile.rms * 2 ** x;
+          // (where the small ratios' closed form decides, both take it before any sum)
+          if (ruled("below", x, log2Spread)) expect(fractionBelow(profile, t)).toBe(lawOverDraws(profile, "below", t));
+          if (ruled("energy-below", x, log2Spread)) expect(energyBelow(profile, t)).toBe(lawOverDraws(profile, "energy-below", t));
+        },
+      ),
+      { numRuns: 2000 },
     );
   });
 });
