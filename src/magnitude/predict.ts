@@ -365,6 +365,8 @@ class Phase {
       }
       const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current);
       const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
+      // nothing reads a layer's stash after its backward rule: let it go, so a collection during the pass copies less
+      this.stash[layer.index] = undefined;
       const input = result.input;
       if (input !== undefined) tidyGradient(layer, input, gradient);
       const inner = result.inner;
