@@ -123,8 +123,17 @@ export const OPTIMIZER_THRESHOLDS = { lostAtRisk: 1e-4, lostFails: 1e-2, decayLo
  * q(1−q)·ulp²; after N steps the relative noise is sqrt((1−q)/(N·q)) (binomial counting; common practice).
  */
 export function stochasticStepsToAverage(updateRms: number, weightRms: number, format: Pick<Format, "precision">): number {
-  if (!(updateRms > 0) || !(weightRms > 0)) return 0;
-  const ulp = 2 ** (Math.floor(Math.log2(weightRms)) - format.precision + 1);
+  return stepsToAverage(updateRms, weightRms > 0 ? ulpOf(weightRms, format) : -1);
+}
+
+// the ulp of a weight of this rms in the format (the weight's binade)
+function ulpOf(weightRms: number, format: Pick<Format, "precision">): number {
+  return 2 ** (Math.floor(Math.log2(weightRms)) - format.precision + 1);
+}
+
+// stochasticStepsToAverage with the weight's ulp already worked out (-1 for a weight of rms 0): one per weight, not per update
+function stepsToAverage(updateRms: number, ulp: number): number {
+  if (!(updateRms > 0) || !(ulp >= 0)) return 0;
   const q = updateRms / ulp;
   if (q >= 1) return 1;
   return Math.ceil((100 * (1 - q)) / q);
@@ -195,25 +204,39 @@ function schedule(optimizer: OptimizerSpec): SchedulePointRate[] {
 /** Pair each weight with its weight gradient by layer and suffix (`dense-1/weight` ↔ `dense-1/weight-gradient`). */
 export function weightPairs(prediction: Prediction): { weight: TensorPrediction; gradient: TensorPrediction }[] {
   const tensors = prediction.tensors;
-  const gradients = new Map<string, TensorPrediction>();
+  // the gradients of each layer (a layer has a few weights): found by layer, then by suffix, with no key string made
+  // per tensor
+  const gradients = new Map<string, TensorPrediction[]>();
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as TensorPrediction;
-    if (t.role === "weight-gradient") gradients.set(pairKey(t), t);
+    if (t.role !== "weight-gradient") continue;
+    const list = gradients.get(t.layer);
+    if (list === undefined) gradients.set(t.layer, [t]);
+    else list.push(t);
   }
   const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as TensorPrediction;
     if (t.role !== "weight") continue;
-    const g = gradients.get(pairKey(t));
+    const list = gradients.get(t.layer);
+    if (list === undefined) continue;
+    // the last of the layer's gradients with the weight's suffix, as one keyed table of them would keep
+    let g: TensorPrediction | undefined;
+    for (let k = 0; k < list.length; k++) if (sameSuffix(t.id, (list[k] as TensorPrediction).id)) g = list[k];
     if (g) pairs.push({ weight: t, gradient: g });
   }
   return pairs;
 }
 
-// the layer, and the id's suffix from its last colon when it has one
-function pairKey(t: TensorPrediction): string {
-  const colon = t.id.lastIndexOf(":");
-  return colon < 0 ? t.layer : t.layer + t.id.slice(colon);
+// whether two ids have the same suffix from their last colon, or both none (`d1/weight:bias` and `d1/weight-gradient:bias`)
+function sameSuffix(a: string, b: string): boolean {
+  const ca = a.lastIndexOf(":");
+  const cb = b.lastIndexOf(":");
+  if (ca < 0 || cb < 0) return ca < 0 && cb < 0;
+  const length = a.length - ca;
+  if (length !== b.length - cb) return false;
+  for (let i = 1; i < length; i++) if (a.charCodeAt(ca + i) !== b.charCodeAt(cb + i)) return false;
+  return true;
 }
 
 // The updates of one weight at one point of the schedule, and their shares lost in each format (in the order the
@@ -224,7 +247,7 @@ function updateLoss(
   gradient: TensorPrediction,
   w: MagnitudeProfile,
   point: SchedulePointRate,
-  updateFormat: Format,
+  ulp: number,
   clip: Clips | null,
   epsilon: number,
 ): UpdateLoss {
@@ -244,7 +267,7 @@ function updateLoss(
     withoutMaster: lost[0] as number,
     withBinary32Master: lost[1] as number,
     compensated: lost[3] as number,
-    stochasticStepsToAverage: stochasticStepsToAverage(update.rms, w.rms, updateFormat),
+    stochasticStepsToAverage: stepsToAverage(update.rms, ulp),
   };
   // the same update without the clip: what raising clip-norm would keep
   if (clipped !== undefined) {
@@ -406,7 +429,8 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
   // the weights at the end of the horizon have grown; their ulp with them
   const w = weight.end;
   const updates: UpdateLoss[] = [];
-  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, c.updateFormat, c.clip, c.epsilon));
+  const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
+  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, ulp, c.clip, c.epsilon));
   // the states hold the clipped gradients
   const end = scaleProfile(gradient.end, c.clip?.end?.factor ?? 1);
   const start = scaleProfile(gradient.start, c.clip?.start?.factor ?? 1);
@@ -430,8 +454,41 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
           settled: fractionBelow(end, Math.sqrt(stateFlushBound)),
         }
       : { firstStep: 0, settled: 0 },
-    secondMomentOverflowRisk: adamLike ? probabilityAnyAbove(start, Math.sqrt(c.stateOverflow)) : 0,
+    secondMomentOverflowRisk: adamLike ? overflowRisk(start, Math.sqrt(c.stateOverflow)) : 0,
   };
+}
+
+/** Below this bound on an overflow probability the risk is reported as 0, its integral not run. */
+const OVERFLOW_NEGLIGIBLE = 1e-15;
+
+/** How far out in the draws the bound splits (z*): P(z > 8.5) < 1.1e-17. */
+const DRAW_SPLIT = 8.5;
+
+// φ(x)/x, the upper bound on the Gaussian tail P(Z > x) for x > 0 (Mills' ratio; Gordon 1941)
+function tailBound(x: number): number {
+  return Math.exp(-0.5 * x * x) / (x * Math.sqrt(2 * Math.PI));
+}
+
+/**
+ * A bound on P(some of a Gaussian tensor's elements reach t) over draws, or Infinity where it does not apply (another
+ * element law, a bound on the magnitudes, a zero or non-finite scale): the draws past z* (at most P(Z > z*)) plus, below
+ * them, every element within the largest of those draws' scale r* = rms·2^(z*·s), n·P(|x| ≥ t | r*) (union bound;
+ * P(|x| ≥ t | r) = 2·P(Z > t/r) rises with r; own algebra).
+ */
+export function anyAboveBound(profile: MagnitudeProfile, t: number): number {
+  if (profile.shape !== "gaussian" && profile.shape !== "half-gaussian") return Infinity;
+  if (profile.bound !== undefined || !(profile.rms > 0) || !(t > 0) || !(profile.log2Spread >= 0)) return Infinity;
+  const reach = t / (profile.rms * 2 ** (DRAW_SPLIT * profile.log2Spread));
+  if (!(reach > 0) || !Number.isFinite(reach) || !(profile.elements >= 0)) return Infinity;
+  return (profile.log2Spread > 0 ? tailBound(DRAW_SPLIT) : 0) + 2 * profile.elements * tailBound(reach);
+}
+
+/**
+ * The probability that a second moment overflows in one step: 0 where {@link anyAboveBound} puts it below 1e-15 (within
+ * 1e-12 of the draw integral, which then need not run: test/scale/optimizer-overflow-bound.test.ts), else the integral.
+ */
+function overflowRisk(profile: MagnitudeProfile, t: number): number {
+  return anyAboveBound(profile, t) < OVERFLOW_NEGLIGIBLE ? 0 : probabilityAnyAbove(profile, t);
 }
 
 /**
