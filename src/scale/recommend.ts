@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, shiftBounds, shiftLevels } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -277,6 +277,8 @@ class BoundedCurves implements ScaledTensorCurves {
 }
 
 const PAIR = new Float64Array(2);
+// one tensor's shifted-tail bounds in the simulation's sweep
+const SHIFTED = new Float64Array(2);
 // Bounds on one profile's any-above probability at t into `into` (low NaN when there is none): the segment upper bound
 // (a handful of evaluations far in the tail, where it falls fast), and where it leaves more than SEGMENT_ENOUGH the
 // moment bounds of src/scale/overflow-enclosure.ts (a few normal tails, far tighter, both ways) where the law has them.
@@ -306,10 +308,11 @@ export function dynamicModel(
 ): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, HorizonPoint>();
+  const ends = new ShiftEnds(profiles);
   const at = (progress: number): HorizonPoint => {
     let point = points.get(progress);
     if (point === undefined) {
-      point = new HorizonPoint(profiles, progress);
+      point = new HorizonPoint(profiles, progress, ends);
       points.set(progress, point);
     }
     return point;
@@ -369,6 +372,40 @@ export function dynamicModel(
 }
 
 /**
+ * What the shifted-tail bounds (src/scale/overflow-enclosure.ts shiftBounds) take of each gradient's start and end
+ * profiles, made on first use for every point of the horizon: at 2i (start) and 2i + 1 (end), the rms's logarithm,
+ * whether the bounds apply to the law and count (as anyAboveEnclosure's, src/scale/overflow-enclosure.ts
+ * enclosureApplies: a Gaussian law, 16 elements or more), the levels of the count (three each) and log2 of the bound
+ * (a billionth of a binade low; +∞ without one).
+ */
+class ShiftEnds {
+  private made_: { rmsLog2: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array } | undefined;
+  constructor(private readonly gradients: readonly GradientProfiles[]) {}
+
+  made(): NonNullable<ShiftEnds["made_"]> {
+    if (this.made_ !== undefined) return this.made_;
+    const n = this.gradients.length;
+    const m = { rmsLog2: new Float64Array(2 * n), ok: new Uint8Array(2 * n), levels: new Float64Array(6 * n), bound: new Float64Array(2 * n) };
+    for (let i = 0; i < n; i++) {
+      const g = this.gradients[i]!;
+      for (let side = 0; side < 2; side++) {
+        const j = 2 * i + side;
+        const law = side === 0 ? g.start : g.end;
+        m.rmsLog2[j] = Math.log2(law.rms);
+        const shape = law.shape;
+        const count = law.elements * (1 - law.zeroFraction);
+        if (!(shape === "gaussian" || shape === "half-gaussian" || shape === "bounded") || !(count >= 16 && Number.isFinite(count))) continue;
+        m.ok[j] = 1;
+        shiftLevels(count, m.levels, 3 * j);
+        m.bound[j] = law.bound !== undefined && law.bound > 0 ? Math.log2(law.bound) - 1e-9 : Infinity;
+      }
+    }
+    this.made_ = m;
+    return m;
+  }
+}
+
+/**
  * The gradients' profiles at one point of the horizon, each made on first use: at a point where the tensor that
  * overflowed most at the last point decides every step alone (its p_i = 1), the others are never made.
  */
@@ -383,6 +420,8 @@ class HorizonPoint {
   constructor(
     private readonly gradients: readonly GradientProfiles[],
     private readonly progress: number,
+    // what the shifted-tail bounds take of the start and end profiles, shared by every point
+    private readonly ends: ShiftEnds,
   ) {
     const n = gradients.length;
     this.n = n;
@@ -413,6 +452,75 @@ class HorizonPoint {
       this.draws[i] = d;
     }
     return d;
+  }
+
+  // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
+  private shifts: { ok: Uint8Array; rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array } | undefined;
+
+  /**
+   * Every tensor's shifted-tail bounds at log2 t into `lows` and `highs` where its law has them and they are tighter
+   * (src/scale/overflow-enclosure.ts shiftBounds: two normal tails each), an integrated tensor (`state` 2) aside. Read off the start and
+   * end profiles, without making the profiles here: inside the horizon the rms's logarithm is the interpolation of
+   * theirs (within far less than the billionth of a binade each level is moved outward by).
+   */
+  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array): void {
+    const c = this.shifts ?? this.shiftConstants();
+    const n = this.n;
+    for (let i = 0; i < n; i++) {
+      // an integrated tensor, or one already bounded below anything that moves a product, is left as it is
+      if (c.ok[i] === 0 || state[i] === 2 || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!) continue;
+      shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+      if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
+      if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
+    }
+  }
+
+  private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
+    const n = this.n;
+    const c = {
+      ok: new Uint8Array(n),
+      rmsLog2: new Float64Array(n),
+      spread: new Float64Array(n),
+      high: new Float64Array(n),
+      low: new Float64Array(n),
+      mass: new Float64Array(n),
+      bound: new Float64Array(n),
+    };
+    const p = this.progress;
+    const ends = this.ends.made();
+    // the law, count and bound of the profile here: the end's at the end, else the start's (profileBetween)
+    const side = p >= 1 ? 1 : 0;
+    for (let i = 0; i < n; i++) {
+      const j = 2 * i + side;
+      if (ends.ok[j] === 0) continue;
+      const g = this.gradients[i]!;
+      let rmsLog2: number;
+      let spread: number;
+      let slack = 0;
+      if (p <= 0 || p >= 1) {
+        rmsLog2 = ends.rmsLog2[j]!;
+        spread = (p <= 0 ? g.start : g.end).log2Spread;
+      } else {
+        const { start, end } = g;
+        spread = start.log2Spread + (end.log2Spread - start.log2Spread) * p;
+        const a = ends.rmsLog2[2 * i]!;
+        const b = ends.rmsLog2[2 * i + 1]!;
+        if (start.rms > 0 && end.rms > 0) {
+          rmsLog2 = a * (1 - p) + b * p;
+          slack = 1e-9;
+        } else rmsLog2 = a;
+      }
+      if (!(spread > 0) || !Number.isFinite(rmsLog2)) continue;
+      c.ok[i] = 1;
+      c.rmsLog2[i] = rmsLog2;
+      c.spread[i] = spread;
+      c.high[i] = ends.levels[3 * j]! + slack;
+      c.low[i] = ends.levels[3 * j + 1]! - slack;
+      c.mass[i] = ends.levels[3 * j + 2]!;
+      c.bound[i] = ends.bound[j]!;
+    }
+    this.shifts = c;
+    return c;
   }
 
   profile(i: number): MagnitudeProfile {
@@ -455,6 +563,8 @@ class OverflowNarrowing implements OverflowBounds {
   private readonly open: Float64Array;
   private batch = 1;
   private largest = -1;
+  // true from the first narrowing until the next has swept every tensor's shifted-tail bounds
+  private sweepPending = false;
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
   // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product
   private readonly size: number;
@@ -566,6 +676,14 @@ class OverflowNarrowing implements OverflowBounds {
       }
       this.buildProducts();
       if (first >= 0) this.integrate(first);
+      // the others wait for the next narrowing, if the one integrated first does not decide with these bounds
+      this.sweepPending = true;
+    } else if (this.sweepPending) {
+      // every tensor's shifted-tail bounds here where tighter, in one pass (a Gaussian-law tensor by two normal
+      // tails): enough for most; the rest are then ordered by what they leave open
+      this.sweepPending = false;
+      this.point.sweep(Math.log2(this.level), this.lows, highs, this.state);
+      this.buildProducts();
       for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
     } else {
       // a batch of work: an upper bound costs about a quarter of an integral
@@ -595,7 +713,7 @@ class OverflowNarrowing implements OverflowBounds {
       }
       this.batch = Math.ceil(this.batch * 1.1);
     }
-    if (this.heap.size === 0) {
+    if (this.heap.size === 0 && !this.sweepPending) {
       const value = this.value();
       this.low = value;
       this.high = value;
