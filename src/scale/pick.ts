@@ -81,15 +81,18 @@ export function findingsTotal(f: ScaledFindings): number {
 }
 
 /**
- * Whether a count is strictly better than another: fewer findings of the overflow side, then fewer failing, then fewer
- * at risk. Inside the window every gradient keeps its flushed share of squared norm under the flush tolerance, so a
- * flush-side finding there costs precision on a bounded share; an overflow under a static scale gives inf or NaN and
- * costs the step (Micikevicius et al. 2018 §3.2), so no number of flush-side findings outweighs one of the overflow side.
- * Each count only grows as findings are added, so a count that is not better stays so (the judgement's early stop).
+ * Whether a count is strictly better than another: fewer failing findings, then fewer of the overflow side, then fewer
+ * at risk. A failing finding makes the verdict "fails", so a scale of the window that leaves one is never picked over
+ * one that leaves only findings at risk. Among as many failing ones, the overflow side counts first: inside the window
+ * every gradient keeps its flushed share of squared norm under the flush tolerance, so a flush-side finding there costs
+ * precision on a bounded share, while an overflow under a static scale gives inf or NaN and costs the step
+ * (Micikevicius et al. 2018 §3.2). Each count only grows as findings are added, and the order is lexicographic, so a
+ * count that is not better stays so (the judgement's early stop).
  */
 export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
+  if (a.fails !== b.fails) return a.fails < b.fails;
   if (a.overflowSide !== b.overflowSide) return a.overflowSide < b.overflowSide;
-  return a.fails < b.fails || (a.fails === b.fails && a.atRisk < b.atRisk);
+  return a.atRisk < b.atRisk;
 }
 
 /**
@@ -97,9 +100,10 @@ export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
  * pick leaves, with the tensors and operation layers that have them (from the check's judgement when it was judged
  * there; else it is judged here). The other exponents of the window are judged on the gradients and the scaled
  * operations alone, and the pick is the one with
- *   1. the fewest findings of the overflow side (overflow under a static scale gives inf or NaN and a lost step;
- *      inside the window flushing costs precision on a bounded share, see {@link fewerFindings}), then
- *   2. the fewest failing findings, then the fewest at risk, then
+ *   1. the fewest failing findings (a failing finding decides the verdict), then
+ *   2. the fewest findings of the overflow side (overflow under a static scale gives inf or NaN and a lost step;
+ *      inside the window flushing costs precision on a bounded share, see {@link fewerFindings}), then the fewest at
+ *      risk, then
  *   3. the centre's margin below the overflow edge kept, then 1 (no scaling) when the pick would lie below it, then
  *      the nearest the centre, then the larger scale (a scale costs nothing until it overflows, Micikevicius et al.
  *      2018 §3.2; a scale below 1 buys only room below the overflow edge, which 1 keeps when it keeps the margin, and

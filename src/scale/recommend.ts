@@ -792,7 +792,7 @@ function weighingSentence(window: ScaleWindow, weighing: PickWeighing, options: 
     return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer of a value too large, or as few and fewer in all.`;
   }
   const closer = window.marginBelowOverflow! < options.marginBinades ? `; it sits closer to the overflow edge than the ${binades(options.marginBinades)} kept otherwise` : "";
-  return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick, weighing.atCentre.overflowSide > 0)}, the fewest of a value too large among the window's scales and then the fewest in all (an overflow costs the step; inside the window no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${closer}.`;
+  return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick, weighing.atCentre.overflowSide > 0)}, the fewest failing among the window's scales, then the fewest of a value too large, then the fewest in all (a failing finding decides the verdict; an overflow costs the step; inside the window no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${closer}.`;
 }
 
 // which side of the window a given scale lies on, and what goes wrong there

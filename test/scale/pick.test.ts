@@ -48,10 +48,11 @@ function everyScale(spec: NetworkSpec, plan: string | undefined, answer: NonNull
   return out;
 }
 
-// fewer findings of a value too large first (an overflow costs the step under a static scale, Micikevicius et al. 2018
-// §3.2; inside the window flushing is held under the tolerance), then fewer failing, then fewer at risk
+// fewer failing findings first (one decides the verdict), then fewer of a value too large (an overflow costs the step
+// under a static scale, Micikevicius et al. 2018 §3.2; inside the window flushing is held under the tolerance), then
+// fewer at risk
 const better = (a: Counted, b: Counted) =>
-  a.overflowSide !== b.overflowSide ? a.overflowSide < b.overflowSide : a.fails < b.fails || (a.fails === b.fails && a.atRisk < b.atRisk);
+  a.fails !== b.fails ? a.fails < b.fails : a.overflowSide !== b.overflowSide ? a.overflowSide < b.overflowSide : a.atRisk < b.atRisk;
 
 describe("the loss-scale pick weighed against the findings it leaves", () => {
   it("deep-relu-glorot: the centre 2^17 leaves failing gradient findings, and the pick moves to the scale that leaves the fewest", () => {
@@ -102,7 +103,42 @@ describe("the loss-scale pick weighed against the findings it leaves", () => {
     expect(weighing.atPick.overflowSide).toBe(0);
     expect(pick).toBeLessThan(weighing.centreLog2);
     for (const [k, found] of byScale) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
-    expect(answer.sentences.join(" ")).toContain("the fewest of a value too large among the window's scales and then the fewest in all");
+    expect(answer.sentences.join(" ")).toContain("the fewest failing among the window's scales, then the fewest of a value too large, then the fewest in all");
+  });
+
+  it("a failing finding is never kept to avoid one at risk of the overflow side: the verdict is the best the window allows", () => {
+    // invented: a catalogue recommender, a 2,000,000-row item table and 1,000,000 classes, 8 workers; at the window's low
+    // end a gradient flushes past the failing share, while the scaled loss overflows binary16 (largest finite 65504,
+    // IEEE 754-2019 Table 3.5) at risk only, "if kept in the activation format"
+    const text = [
+      "name: seed-catalogue",
+      "input: { tokens: 50 }",
+      "training:",
+      "  batch: 512",
+      "  workers: 8",
+      "  loss: { kind: cross-entropy, classes: 1000000 }",
+      "  optimizer: { kind: adam, learning-rate: 0.001 }",
+      "  horizon: { steps: 50000, final-loss: 6 }",
+      "precision: { activations: binary16 }",
+      "layers:",
+      "  - { type: embedding, vocabulary: 2000000, width: 64 }",
+      "  - { type: dense, width: 256, init: he-normal }",
+      "  - relu",
+      "  - { type: dense, width: 1000000 }",
+    ].join("\n");
+    const parsed = parseSpec(text, "seed-catalogue.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const spec = parsed.spec;
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    const byScale = everyScale(spec, undefined, answer);
+    // some scale of the window leaves no failing finding, and the low end leaves one: the pick is among the former
+    expect([...byScale.values()].some((c) => c.fails === 0)).toBe(true);
+    expect([...byScale.values()].some((c) => c.fails > 0)).toBe(true);
+    expect(weighing.atPick.fails).toBe(0);
+    for (const [k, found] of byScale) expect(better(found, weighing.atPick), `2^${k}`).toBe(false);
+    expect(result.verdict).not.toBe("fails");
   });
 
   it("a plan with a loss scale of its own: the answer's pick is weighed, the check stays at the given scale", () => {
