@@ -73,6 +73,22 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
     }
     return to;
   };
+  // pools whose window covers their whole input image (a global pool) in every use: they keep covering it when the
+  // image shrinks, as their window shrinks with it; a local pool keeps its window
+  const globalPools = new Set<LayerSpec>();
+  if (f.image > 1) {
+    const full = buildGraph(spec);
+    if (full.ok) {
+      const local = new Set<LayerSpec>();
+      for (const layer of forwardOrder(full.graph)) {
+        const s = layer.spec;
+        if ((s.family !== "average-pool" && s.family !== "max-pool") || layer.input.layout !== "image") continue;
+        if (s.size >= layer.input.height && s.size >= layer.input.width) globalPools.add(s);
+        else local.add(s);
+      }
+      for (const s of local) globalPools.delete(s);
+    }
+  }
   const originals = new Map<LayerSpec, LayerSpec>();
   const cloneList = (list: readonly LayerSpec[]): LayerSpec[] => list.map(cloneLayer);
   function cloneLayer(layer: LayerSpec): LayerSpec {
@@ -100,6 +116,10 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
         break;
       case "repeat":
         copy = { ...layer, layers: cloneList(layer.layers) };
+        break;
+      case "average-pool":
+      case "max-pool":
+        copy = globalPools.has(layer) ? { ...layer, size: size("global pool windows", layer.size, f.image), stride: div(layer.stride, f.image) } : { ...layer };
         break;
       default:
         copy = { ...layer };
@@ -186,7 +206,8 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
     changes.push(`classes ${spec.training.loss.classes} → ${(training.loss as { classes: number }).classes}`);
   }
   if (f.image > 1 && spec.input.kind === "image" && input.kind === "image") {
-    changes.push(`image ${spec.input.height}×${spec.input.width} → ${input.height}×${input.width}`);
+    const pools = [...(sizes.get("global pool windows")?.values() ?? [])].map(([from, to]) => `${from} → ${to}`);
+    changes.push(`image ${spec.input.height}×${spec.input.width} → ${input.height}×${input.width}` + (pools.length > 0 ? `; windows of the pools that cover the whole image ${pools.join(", ")}` : ""));
   }
   return { spec: result, report: { factors: f, changes, warnings, shrunk: true } };
 }

@@ -236,6 +236,32 @@ layers:
     }
   });
 
+  it("an image shrink shrinks the window of a pool that covers the whole image, and keeps a local pool's", () => {
+    // invented: a small classifier of 32×32 images ending in a global average pool over its 8×8 map
+    const s = spec(`name: global-pool
+input: { channels: 3, height: 32, width: 32 }
+training: { batch: 8, loss: { kind: cross-entropy, classes: 4 } }
+layers:
+  - { type: conv2d, channels: 8, kernel: 3, bias: false }
+  - relu
+  - { type: max-pool, size: 2 }
+  - { type: conv2d, channels: 8, kernel: 3, bias: false }
+  - relu
+  - { type: max-pool, size: 2 }
+  - { type: average-pool, size: 8 }
+  - flatten
+  - { type: dense, width: 4 }
+`);
+    const { spec: small, report } = shrinkSpec(s, { image: 2 });
+    const built = buildGraph(small);
+    expect(built.ok).toBe(true);
+    const pools = small.layers.filter((l) => l.family === "max-pool" || l.family === "average-pool").map((l) => [l.family, (l as { size: number }).size]);
+    expect(pools).toEqual([["max-pool", 2], ["max-pool", 2], ["average-pool", 4]]);
+    expect(report.changes.join(" ")).toContain("image 32×32 → 16×16; windows of the pools that cover the whole image 8 → 4");
+    // the pool still reduces the map to one pixel
+    expect(built.ok && built.graph.layers.find((l) => l.spec.family === "average-pool")?.output).toMatchObject({ layout: "image", height: 1, width: 1 });
+  });
+
   // a YAML key __proto__ is an own property (YAML 1.2 maps; the spec loader keeps it as one); an assignment
   // blocks["__proto__"] = … would set the copy's prototype instead (ECMAScript Annex B, Object.prototype.__proto__; from memory)
   it("keeps a block named __proto__ as a block of the shrunk spec", () => {
