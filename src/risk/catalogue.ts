@@ -117,7 +117,8 @@ export const FINDING_INFO = {
     short: "overflow a softmax denominator",
     description:
       "With the row maximum subtracted each exp is at most 1, but the denominator sums one term per key; it " +
-      "overflows when a row has more keys than the format's largest finite value.",
+      "can overflow when a row has more keys than the largest finite value of the format it is summed in: the " +
+      "accumulate format, or the activation format where an implementation does not widen (then at most at risk).",
   },
   "norm-sum-overflow": {
     title: "Norm statistics overflow",

@@ -62,6 +62,7 @@ const EPSILON_KEPT = 8;
 const EPSILON_FLUSHED = 9;
 const SECOND_MOMENT = 10;
 const GRADIENT_SUM_ERROR = 11;
+const LOSS_SUM_ERROR = 12;
 
 /**
  * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
@@ -329,9 +330,11 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
   switch (draft.wording) {
     case SOFTMAX_GUARDED:
       return value > 0
-        ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator sums ${site.terms} terms, ` +
-            `more than ${format} holds (${limitNumber(draft.criticalLevel as number)}).`
-        : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow ${format}.`;
+        ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per key, ` +
+            `each at most 1), can pass what ${format} holds (${limitNumber(draft.criticalLevel as number)})` +
+            `${draft.notWidened ? " if the sum is kept in the activation format" : ""} (${verdictWord(verdict)}).`
+        : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
+            `${site.terms}) stays within ${format}${draft.extra === 1 ? " with its scale factor" : ""}.`;
     case SOFTMAX_EXP:
       return (
         `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
@@ -352,6 +355,12 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `${site.layer} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about ` +
         `√n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`
       );
+    case LOSS_SUM_ERROR: {
+      const said =
+        `The loss sums ${site.terms} per-example terms in ${format}, the accumulate format: relative rounding error at least ` +
+        `√n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
+      return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`).`;
+    }
     case ACCUMULATION_OVERFLOW:
       return (
         `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
@@ -459,9 +468,18 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
   const limits = context.activations;
   const t = context.thresholds;
   if (site.guarded) {
-    const value = site.terms >= limits.overflowLevel ? 1 : 0;
-    putGraded(list, limits, "activations", "overflow-risk", "softmax-sum-overflow", value, limits.overflowLevel,
-      t.overflowAtRisk, t.overflowFails, false, SOFTMAX_GUARDED, 0, false);
+    // The denominator Σ exp(s − max) lies in [1, n], n when a row's logits are close (small logits at the start). It is
+    // summed in the accumulate format; only an implementation that does not widen keeps it in the activation format,
+    // so that case is at most at risk (as the norms' sums of squares). An 8-bit format with scale factors scales the
+    // sum as its other tensors (perTensorScaleLog2, OCP MX v1.0 §6), so n stays within it.
+    const first = context.activations.format === context.accumulate.format ? 1 : 0;
+    for (let k = first; k < 2; k++) {
+      const held = k === 0 ? context.activations : context.accumulate;
+      const scaled = FORMATS[held.format].bits === 8 && (context.scaling ?? "none") !== "none";
+      const value = !scaled && site.terms >= held.overflowLevel ? 1 : 0;
+      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", value, held.overflowLevel,
+        t.overflowAtRisk, t.overflowFails, k === 0, SOFTMAX_GUARDED, scaled ? 1 : 0, k === 0);
+    }
     return;
   }
   const critical = Math.log(limits.overflowLevel);
@@ -596,6 +614,13 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
       draft.scaled = scaling === "tensor" ? 1 : 2;
       draft.scaleLog2 = scaleLog2;
     }
+  }
+  // A summed loss is a reduction of `terms` per-example losses in the accumulate format: its rounding error judged as
+  // an accumulation's (sumRoundingError, √n·u). Its terms share one sign, so a sequential sum in a narrow format does
+  // worse once it passes about a term/u (each term then below half an ulp): √n·u is the least it carries.
+  if (site.terms > 1) {
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", sumRoundingError(site.terms, context.accumulate.unitRoundoff), null,
+      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, 0, false);
   }
 }
 

@@ -43,6 +43,44 @@ describe("softmax exp overflow", () => {
     const long = evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 70000 }), context());
     expect(long.findings[0]?.kind).toBe("softmax-sum-overflow");
   });
+
+  it("the denominator is summed in the accumulate format: 70,000 keys fail in a binary16 accumulator, are at most at risk kept in binary16 activations, and fit in binary32", () => {
+    // binary16's overflow threshold 65520 (IEEE 754-2019 Table 3.5, max finite 65504 plus half an ulp)
+    const sums = (ctx: Partial<HazardContext>) => evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 70000 }), context(ctx));
+    expect(hazardVerdict(sums({ accumulate: BINARY16 }))).toBe("fails");
+    const widened = sums({ accumulate: BINARY32 });
+    expect(hazardVerdict(widened)).toBe("at-risk");
+    expect(widened.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", "at-risk"]]);
+    expect(widened.evaluations.find((e) => e.format === "binary32")?.value).toBe(0);
+    expect(widened.findings[0]?.sentence ?? widened.evaluations[0]?.sentence).toContain("if the sum is kept in the activation format");
+  });
+
+  it("512 keys in e4m3 activations (largest finite 448, OCP 8-bit spec): at risk unscaled and kept narrow, fits with per-tensor scale factors", () => {
+    const unscaled = evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 512 }), context({ activations: E4M3_SATURATING, accumulate: BINARY32, scaling: "none" }));
+    expect(hazardVerdict(unscaled)).toBe("at-risk");
+    const scaled = evaluateHazard(site({ kind: "softmax-exp", guarded: true, terms: 512 }), context({ activations: E4M3_SATURATING, accumulate: BINARY32, scaling: "tensor" }));
+    expect(hazardVerdict(scaled)).toBe("fits");
+    expect(scaled.evaluations[0]?.sentence).toContain("stays within e4m3 with its scale factor");
+  });
+});
+
+describe("a summed loss's rounding error", () => {
+  // 4096 per-example losses summed: √n·u as an accumulation's (Higham & Mary 2019, Theorem 2.4; from memory), u = 2^-8
+  // in bfloat16 (Intel, bfloat16 – Hardware Numerics Definition, 2018), 2^-24 in binary32 (IEEE 754-2019 Table 3.5)
+  const loss = (terms: number) => site({ kind: "loss-value", layer: "loss", terms, input: profile({ shape: "constant", rms: 7.4 }) });
+  it("summed in a bfloat16 accumulator: √4096·2^-8 = 0.25 fails, with the remedy; in binary32 it fits", () => {
+    const narrow = evaluateHazard(loss(4096), context({ activations: BFLOAT16_FTZ, accumulate: BFLOAT16_FTZ }));
+    const error = narrow.evaluations.find((e) => e.measure === "relative-error");
+    expect(error?.value).toBe(0.25);
+    expect(error?.verdict).toBe("fails");
+    expect(error?.sentence).toContain("accumulate in binary32 (`accumulate: binary32`)");
+    const wide = evaluateHazard(loss(4096), context({ activations: BFLOAT16_FTZ, accumulate: BINARY32 }));
+    expect(wide.evaluations.find((e) => e.measure === "relative-error")?.value).toBeCloseTo(64 * 2 ** -24, 15);
+    expect(wide.findings.some((f) => f.kind === "accumulation-error")).toBe(false);
+  });
+  it("a loss of one term (mean reduction's site) adds no rounding evaluation", () => {
+    expect(evaluateHazard(loss(1), context()).evaluations.some((e) => e.measure === "relative-error")).toBe(false);
+  });
 });
 
 describe("norm sums of squares", () => {
@@ -120,7 +158,10 @@ describe("accumulation", () => {
 describe("the loss value", () => {
   it("sum reduction over 4096 positions of a loss near ln 1000 = 6.91 overflows binary16 (4096·6.908 = 28294 fits unscaled, not times 4)", () => {
     const loss = site({ kind: "loss-value", terms: 4096, input: profile({ shape: "constant", rms: Math.log(1000) }) });
-    expect(hazardVerdict(evaluateHazard(loss, context({ accumulate: BINARY16 })))).toBe("fits");
+    const unscaled = evaluateHazard(loss, context({ accumulate: BINARY16 }));
+    expect(unscaled.evaluations.filter((e) => e.measure === "overflow-risk").map((e) => e.verdict)).toEqual(["fits"]);
+    // the sum's rounding, √4096·2^-11 = 0.031 in binary16 (IEEE 754-2019 Table 3.5, p = 11), is at risk on its own
+    expect(unscaled.findings.map((f) => [f.kind, f.severity])).toEqual([["accumulation-error", "at-risk"]]);
     const scaled = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 }));
     expect(hazardVerdict(scaled)).toBe("fails");
     expect(scaled.findings[0]?.kind).toBe("loss-value-overflow");
