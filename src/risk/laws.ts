@@ -1295,7 +1295,9 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
  * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian"). The Gaussian
  * "below" mixture is read off the shared rows of the draw integral where they cover the spread; `viaRows` false
  * sums it on the search's own lattice (the reference the rows are held to in the tests). The "any-above" level is
- * solved on {@link lawOverDraws}' any-above sums themselves (anyAboveLevel), so the probability there is p.
+ * solved on {@link lawOverDraws}' any-above sums themselves (anyAboveLevel), so the probability there is p; for the
+ * Gaussian laws with 64 elements or more at spreads 0.5 to 8 it is read off a table of those levels (within 1e-6
+ * binade of the search, see levelTableValue), which `viaRows` false leaves aside.
  */
 export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number, viaRows = true): number {
   const kind = measure === "any-above" ? ANY_ABOVE : BELOW;
@@ -1305,7 +1307,13 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   latticeClosure = null;
   const spread = profile.log2Spread;
   if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
-  if (decreasing && p > 0 && p < anyOf(integrandShare, integrandCount)) return anyAboveLevel(spread, p);
+  if (decreasing && p > 0 && p < anyOf(integrandShare, integrandCount)) {
+    if (viaRows && integrandLaw === GAUSSIAN && integrandCount >= GRID_COUNT && spread >= LEVEL_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) {
+      const level = levelTableValue(spread, p);
+      if (level === level) return level;
+    }
+    return anyAboveLevel(spread, p);
+  }
   // the share below a level does not depend on the element count: tensors of one spread and law share it
   const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
   const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
@@ -2016,4 +2024,56 @@ function anyAboveLevel(s: number, p: number): number {
     x = next;
   }
   return x;
+}
+
+// Tables of the Gaussian any-above levels. The level where the any-above sum is p depends on the law's positive share,
+// p, the element count n and the spread s alone, smoothly in ln n and s (the largest element's level moves as about
+// √(2 ln n), the draws widen it with s). For each (share, p) a check meets, points at counts e^{k/8} (the remainder rows'
+// own grid) and spreads a/16 hold anyAboveLevel's level, filled lazily once per process, and a level at (n, s) is the
+// Lagrange polynomial through the 6 nearest counts in ln n on each of the 8 nearest spreads, then through those in the
+// spread (Abramowitz & Stegun 25.2.15). A table of a mathematical function of (share, p): its values never depend on
+// what the process computed before. test/risk/share-tables.test.ts holds it to anyAboveLevel itself.
+const LEVEL_MIN_SPREAD = 0.5;
+const LEVEL_TABLES = new Map<number, (Window | undefined)[]>();
+const N_WEIGHTS = new Float64Array(TABLE_POINTS);
+function levelTableValue(spread: number, p: number): number {
+  const share = integrandShare;
+  const count = integrandCount;
+  const key = share === 1 ? p : -p;
+  let rows = LEVEL_TABLES.get(key);
+  if (rows === undefined) {
+    rows = [];
+    LEVEL_TABLES.set(key, rows);
+  }
+  const v = spread / ROW_STEP;
+  const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
+  const u = Math.log(count) * GRID_PER_LN;
+  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
+  // the lowest count point is GRID_COUNT's row and below (ln 64·8 ≈ 33.3): a count point at or below 30 is left to the search
+  if (first < 30) return NaN;
+  lagrangeWeights(N_WEIGHTS, X_SCALE, u - first);
+  const s = v - firstRow;
+  if (s !== S_WEIGHTS_AT[0]) {
+    lagrangeWeights(S_WEIGHTS, S_SCALE, s);
+    S_WEIGHTS_AT[0] = s;
+  }
+  let result = 0;
+  for (let r = 0; r < SPREAD_POINTS; r++) {
+    const a = firstRow + r;
+    const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
+    const at = first - row.base;
+    let sum = 0;
+    for (let k = 0; k < TABLE_POINTS; k++) {
+      let level = row.values[at + k] as number;
+      if (level !== level) {
+        integrandCount = Math.exp((first + k) / GRID_PER_LN);
+        level = anyAboveLevel(a * ROW_STEP, p);
+        integrandCount = count;
+        row.values[at + k] = level;
+      }
+      sum += (N_WEIGHTS[k] as number) * level;
+    }
+    result += (S_WEIGHTS[r] as number) * sum;
+  }
+  return result;
 }
