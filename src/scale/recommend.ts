@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, shiftBounds, shiftLevels } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, shiftBounds, shiftLevels } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -279,18 +279,39 @@ class BoundedCurves implements ScaledTensorCurves {
 const PAIR = new Float64Array(2);
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
-// Bounds on one profile's any-above probability at t into `into` (low NaN when there is none): the segment upper bound
-// (a handful of evaluations far in the tail, where it falls fast), and where it leaves more than SEGMENT_ENOUGH the
-// moment bounds of src/scale/overflow-enclosure.ts (a few normal tails, far tighter, both ways) where the law has them.
+// Bounds on one profile's any-above probability at t into `into` (low NaN when there is none). Where the law has moment
+// bounds (src/scale/overflow-enclosure.ts): first the shifted tails (two normal tails), which settle a tensor far from
+// t alone; else, at a spread of a binade or more, the moment bounds (a few normal tails more, far tighter, both ways).
+// Otherwise the segment upper bound (a handful of evaluations far in the tail, where it falls fast; at a narrow spread
+// it beats the moment bounds, whose remainder grows as the spread's inverse cube), and where it leaves more than
+// SEGMENT_ENOUGH the moment bounds where the law has them. Any of them serves the window's search, which then
+// integrates where they do not decide.
 const SEGMENT_ENOUGH = 1e-9;
+const LEVELS = new Float64Array(3);
 function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array): void {
-  const segment = probabilityAnyAboveUpper(profile, t);
-  into[0] = NaN;
+  const applies = enclosureApplies(profile, t);
+  if (applies) {
+    shiftLevels(profile.elements * (1 - profile.zeroFraction), LEVELS, 0);
+    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, LEVELS[0]!, LEVELS[1]!, LEVELS[2]!, into, 0);
+    if (!(into[1]! > SEGMENT_ENOUGH)) return;
+    if (profile.log2Spread >= 1) {
+      const e = anyAboveEnclosure(profile, t);
+      if (e !== null) {
+        if (e[0] > into[0]!) into[0] = e[0];
+        if (e[1] < into[1]!) into[1] = e[1];
+        return;
+      }
+    }
+  }
+  const shiftLow = applies ? into[0]! : NaN;
+  const shiftHigh = applies ? into[1]! : 1;
+  const segment = Math.min(shiftHigh, probabilityAnyAboveUpper(profile, t));
+  into[0] = shiftLow;
   into[1] = segment;
-  if (!(segment > SEGMENT_ENOUGH)) return;
+  if (!(segment > SEGMENT_ENOUGH) || !applies) return;
   const e = anyAboveEnclosure(profile, t);
   if (e === null) return;
-  into[0] = e[0];
+  into[0] = Math.max(shiftLow, e[0]);
   into[1] = Math.min(segment, e[1]);
 }
 
