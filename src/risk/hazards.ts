@@ -562,7 +562,7 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   const outputs = Math.max(1, nonzeroElements(profile) / terms);
   const level = limits.overflowLevel;
   const coherent = law.positiveShare === 1;
-  const overflow = !(profile.rms > 0)
+  const overflow = !(profile.rms > 0) || (!coherent && sumFarBelow(profile, level, terms))
     ? 0
     : coherent
       ? // the sum passes the level exactly when the drawn scale passes level/terms: log2 r ~ N(log2 rms, spread²)
@@ -578,6 +578,15 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
     t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
   putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),
     t.overflowAtRisk, t.overflowFails, false, ACCUMULATION_OVERFLOW, 0, false);
+}
+
+// Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw (z = 9,
+// src/risk/laws.ts) the level is over 40 of the sum's standard deviations away, where Q underflows to 0 (Q(40) ≈ 4e-350,
+// below the smallest double), so the draw sum is 0 without a closure or a sum, as the sum itself would find it
+function sumFarBelow(profile: MagnitudeProfile, level: number, terms: number): boolean {
+  // the scale at z = 9, a little high against the rounding of the rule's own factors
+  const top = profile.rms * 2 ** (Math.max(0, profile.log2Spread) * 9) * (1 + 1e-9);
+  return level / (Math.sqrt(terms) * top) > 40;
 }
 
 // The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction); held in

@@ -562,6 +562,26 @@ function judgeTensor(
     verdict = worseVerdict(verdict, risk.verdict);
   }
   const risks = RISKS.slice(0, count);
+  // two literals rather than a spread of the optional key: properties after a spread are added one by one, outside the
+  // object's own slots (a second allocation per tensor); `partOf` keeps its place after `source`
+  if (tensor.partOf !== undefined) {
+    return {
+      id: tensor.id,
+      layer: tensor.layer,
+      layerIndex: tensor.layerIndex,
+      family: tensor.family,
+      role: tensor.role,
+      slot: tensor.slot,
+      shape: tensor.shape,
+      source: tensor.source,
+      partOf: tensor.partOf,
+      start: tensor.start,
+      end: tensor.end,
+      statistics: scaled.statistics,
+      risks,
+      verdict,
+    };
+  }
   return {
     id: tensor.id,
     layer: tensor.layer,
@@ -571,7 +591,6 @@ function judgeTensor(
     slot: tensor.slot,
     shape: tensor.shape,
     source: tensor.source,
-    ...(tensor.partOf === undefined ? {} : { partOf: tensor.partOf }),
     start: tensor.start,
     end: tensor.end,
     statistics: scaled.statistics,

@@ -37,15 +37,16 @@ function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
   return bound === undefined || !(bound > 0) || t < bound;
 }
 
-// E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), m ≥ 0, c > 0: with z* = ln(c)/m the point where c·e^{−m·z} = 1, it is
-// Φ(z*) + c·e^{m²/2}·Q(z* + m) (complete the square: e^{−m·z}·φ(z) = e^{m²/2}·φ(z + m)); NaN (unsettled) when the
-// first term alone is above SETTLED. Without a spread, min(1, c).
-function capBound(c: number, m: number): number {
-  if (!(c > 0)) return 0;
-  if (!(m > 0)) return Math.min(1, c);
+// Whether E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), m ≥ 0, c ≥ 0, is below SETTLED: with z* = ln(c)/m the point where
+// c·e^{−m·z} = 1, it is Φ(z*) + c·e^{m²/2}·Q(z* + m) (complete the square: e^{−m·z}·φ(z) = e^{m²/2}·φ(z + m)), and
+// not settled at once where the first term alone is above SETTLED. Without a spread, min(1, c). (A boolean: a double
+// returned from a call is a heap number the collector has to take back, at every tensor.)
+function capSettled(c: number, m: number): boolean {
+  if (!(c > 0)) return true;
+  if (!(m > 0)) return c < SETTLED;
   const crossing = Math.log(c) / m;
-  if (crossing > -FAR_DRAW) return NaN;
-  return normalSf(-crossing) + Math.exp(Math.log(c) + (m * m) / 2 + normalLogSf(crossing + m));
+  if (crossing > -FAR_DRAW) return false;
+  return normalSf(-crossing) + Math.exp(Math.log(c) + (m * m) / 2 + normalLogSf(crossing + m)) < SETTLED;
 }
 
 /**
@@ -55,8 +56,7 @@ function capBound(c: number, m: number): number {
 export function settledBelow(profile: MagnitudeProfile, t: number): number {
   if (!gaussianAt(profile, t)) return NaN;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
-  const bound = capBound((DENSITY * t) / profile.rms, spread * LN2);
-  return bound < SETTLED ? 0 : NaN;
+  return capSettled((DENSITY * t) / profile.rms, spread * LN2) ? 0 : NaN;
 }
 
 /**
@@ -67,8 +67,7 @@ export function settledEnergyBelow(profile: MagnitudeProfile, t: number): number
   if (!gaussianAt(profile, t)) return NaN;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
   const a = t / profile.rms;
-  const bound = capBound((DENSITY / 3) * a * a * a, 3 * spread * LN2);
-  return bound < SETTLED ? 0 : NaN;
+  return capSettled((DENSITY / 3) * a * a * a, 3 * spread * LN2) ? 0 : NaN;
 }
 
 /**

@@ -138,13 +138,16 @@ export function scaledTensor(
   thresholds: Pick<RiskThresholds, "maxQuantile" | "lowQuantile">,
 ): ScaledTensor {
   const factor = lossScaleFactor(tensor.role, lossScale);
-  const startProfile = riskProfile(tensor.start, factor);
+  // unscaled, the prediction's own profiles serve: the risk functions read only the law fields, and a copy per tensor
+  // would be garbage for the collector
+  const own = factor === 1;
+  const startProfile = own ? tensor.start : riskProfile(tensor.start, factor);
   const startStatistics = profileStatistics(startProfile, thresholds);
   // many tensors end the horizon as they start (weights and activations without growth): compute once
   if (sameDistribution(tensor.start, tensor.end)) {
     return { statistics: { factor, start: startStatistics, end: startStatistics }, start: startProfile, end: startProfile, same: true };
   }
-  const endProfile = riskProfile(tensor.end, factor);
+  const endProfile = own ? tensor.end : riskProfile(tensor.end, factor);
   const endStatistics = profileStatistics(endProfile, thresholds);
   return { statistics: { factor, start: startStatistics, end: endStatistics }, start: startProfile, end: endProfile, same: false };
 }

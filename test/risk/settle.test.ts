@@ -8,6 +8,11 @@ import { SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow } from "../.
 import { subnormalNoise } from "../../src/risk/subnormal-noise.js";
 import { riskProfile, tensorFormatRisk, tensorStatistics } from "../../src/risk/tensor.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
+import { anyOf as ruleAnyOf, normalSf as ruleNormalSf } from "../../src/risk/_math.js";
+import { overDraws } from "../../src/risk/laws.js";
+import { evaluateHazard } from "../../src/risk/hazards.js";
+import { context, site } from "./hazard-sites.js";
+import { BINARY16, BINARY32 } from "./limits.js";
 
 // The bounds of src/risk/settle.ts report a share or probability as 0 (or an overflow probability as 1) without its draw
 // integral. The bound they are held to: within 1e-12 absolute of the integral src/risk/profile.ts takes (README: the
@@ -205,5 +210,38 @@ describe("a tensor's risk numbers with the settled shares", () => {
       { numRuns: 1500 },
     );
     expect(settled).toBeGreaterThan(100);
+  });
+});
+
+describe("an accumulation far below its overflow level", () => {
+  // the partial sums' overflow as src/risk/hazards.ts integrates it (reflection principle: 4·Q(level/(√n·r)) per output,
+  // any of the outputs), by the draw rule itself: the shortcut for sums far below the level must give it bit for bit
+  function integrated(rms: number, spread: number, elements: number, terms: number, level: number): number {
+    const outputs = Math.max(1, elements / terms);
+    return overDraws(rms, spread, (r) => ruleAnyOf(Math.min(1, 4 * ruleNormalSf(level / (Math.sqrt(terms) * r))), outputs));
+  }
+
+  it("is the draw sum's value exactly, in binary32 and binary16, and is 0 for most sums far from the level", () => {
+    let zeros = 0;
+    fc.assert(
+      fc.property(
+        fc.double({ min: -40, max: 140, noNaN: true }),
+        fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 4, noNaN: true })),
+        fc.integer({ min: 1, max: 1 << 16 }),
+        fc.integer({ min: 1, max: 64 }),
+        fc.constantFrom(BINARY16, BINARY32),
+        (log2Rms, spread, terms, outputs, accumulate) => {
+          const rms = 2 ** log2Rms;
+          const input = { elements: terms * outputs, zeroFraction: 0, shape: "gaussian" as const, rms, log2Spread: spread };
+          const check = evaluateHazard(site({ kind: "accumulation", terms, input }), context({ accumulate }));
+          const overflow = check.evaluations.find((e) => e.measure === "overflow-risk");
+          const expected = integrated(rms, spread, terms * outputs, terms, accumulate.overflowLevel);
+          expect(overflow?.value).toBe(expected);
+          if (expected === 0) zeros++;
+        },
+      ),
+      { numRuns: 600 },
+    );
+    expect(zeros).toBeGreaterThan(100);
   });
 });
