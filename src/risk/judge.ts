@@ -328,7 +328,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const sums = spec.training.workers > 1 || spec.training.accumulationSteps > 1;
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
-    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, tensors, hazards, scales[i] === lossScale ? undefined : scales[i], sums);
+    const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, hazards, scales[i] === lossScale ? undefined : scales[i], sums);
     verdict = worseVerdict(verdict, formatCheck.verdict);
     formatChecks.push(formatCheck);
   }
@@ -427,6 +427,9 @@ interface FormatSetting {
   contextIndex: number;
   /** the loss scale its gradients are judged at (settings under the same plan share one) */
   lossScale: number;
+  /** the findings of the tensors it judges (judgeTensors fills them, judgeFormat adds the hazards'), and their count */
+  findings: Finding[];
+  tensorsJudged: number;
 }
 
 function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thresholds: RiskThresholds): FormatSetting[] {
@@ -452,6 +455,8 @@ function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thr
       notHeld: { judged: false, perTensorScaling, blockScaling, thresholds },
       contextIndex,
       lossScale: 1,
+      findings: [],
+      tensorsJudged: 0,
     });
   }
   return settings;
@@ -489,6 +494,17 @@ function judgeTensors(
     const tensor = predicted[i] as TensorPrediction;
     const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays);
     tensors.push(ledger ? withLedger(check, tensor.ledger) : check);
+    // each format's findings and count gathered here, in tensor order, rather than by a walk over every tensor per format
+    const risks = check.risks;
+    for (let j = 0; j < risks.length; j++) {
+      const risk = risks[j] as TensorFormatRisk;
+      let setting = settings[0] as FormatSetting;
+      for (let k = 1; setting.format !== risk.format && k < settings.length; k++) setting = settings[k] as FormatSetting;
+      const found = risk.findings;
+      for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
+      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
+      if (risk.judged) setting.tensorsJudged++;
+    }
   }
   return tensors;
 }
@@ -687,25 +703,14 @@ function siteCheck(first: HazardCheck, named: HazardCheck, evaluations: HazardEv
 function judgeFormat(
   setting: FormatSetting,
   plan: PrecisionPlan,
-  tensors: readonly TensorCheck[],
   hazards: readonly HazardCheck[],
   ownScale: AppliedLossScale | undefined,
   sums: boolean,
 ): FormatCheck {
   const { format, evaluated } = setting;
-  const findings: Finding[] = [];
-  let tensorsJudged = 0;
-  for (let i = 0; i < tensors.length; i++) {
-    const tensor = tensors[i] as TensorCheck;
-    const risks = tensor.risks;
-    for (let j = 0; j < risks.length; j++) {
-      const risk = risks[j] as TensorFormatRisk;
-      if (risk.format !== format) continue;
-      for (let k = 0; k < risk.findings.length; k++) findings.push(risk.findings[k] as Finding);
-      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
-      if (risk.judged) tensorsJudged++;
-    }
-  }
+  // the tensors' findings and count, gathered by judgeTensors
+  const findings = setting.findings;
+  const tensorsJudged = setting.tensorsJudged;
   for (let i = 0; i < hazards.length; i++) {
     const hazardFindings = (hazards[i] as HazardCheck).findings;
     for (let j = 0; j < hazardFindings.length; j++) {

@@ -23,6 +23,7 @@ export const SETTLED = 1e-13;
 // at most 1 (an upper bound) or at least 0 (a lower one).
 const FAR_DRAW = 7.65;
 const LOG_FAR_SHARE = Math.log(SETTLED / 4);
+const LOG_SETTLED = Math.log(SETTLED);
 // √(2/π): P(|Z| ≤ a) = erf(a/√2) ≤ √(2/π)·a, and E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3 (the density at most φ(0) = 1/√(2π)
 // on both sides)
 const DENSITY = Math.sqrt(2 / Math.PI);
@@ -44,9 +45,13 @@ function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
 function capSettled(c: number, m: number): boolean {
   if (!(c > 0)) return true;
   if (!(m > 0)) return c < SETTLED;
-  const crossing = Math.log(c) / m;
+  const logC = Math.log(c);
+  const crossing = logC / m;
   if (crossing > -FAR_DRAW) return false;
-  return normalSf(-crossing) + Math.exp(Math.log(c) + (m * m) / 2 + normalLogSf(crossing + m)) < SETTLED;
+  const logSecond = logC + (m * m) / 2;
+  // where z* + m ≤ 0 the second term is at least half of c·e^{m²/2}: refused without the tails
+  if (crossing + m <= 0 && logSecond - LN2 >= LOG_SETTLED) return false;
+  return normalSf(-crossing) + Math.exp(logSecond + normalLogSf(crossing + m)) < SETTLED;
 }
 
 /**
