@@ -6,7 +6,7 @@ import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, normalSf } from "./_math.js";
-import { blockScaledRiskCached } from "./blocks.js";
+import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
@@ -14,7 +14,7 @@ import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./ten
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { distinctNumbers, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
+import { distinctNumbers, flat, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -221,7 +221,7 @@ export function evaluateHazard(
     const worse = endWorse ? second : first;
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const sentence = sentenceOf(worse, site, context, ended ? at : null);
+    const sentence = flat(sentenceOf(worse, site, context, ended ? at : null));
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
     if (topInput !== undefined && input === site.input) {
@@ -664,22 +664,25 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
   if (context.workerGradients === "average" && context.workers > 1) {
     const scaled = scaledProfile(input, context.lossScale);
     const divided = scaledProfile(scaled, 1 / context.workers);
-    // the flush level in each profile's own units: the bound, moved by the profile's own per-tensor scale; under block
-    // scales, the floor of a scale clamped at 2^-127 (a block's own flushing does not move with a common factor)
-    const flushLevel = (profile: MagnitudeProfile): number =>
-      block !== null
-        ? block.smallestScale * limits.flushBound
-        : scaling === "tensor"
-          ? limits.flushBound * 2 ** -perTensorScaleLog2(profileStatistics(profile, t).max, limits.maxFinite)
-          : limits.flushBound;
-    const dividedLevel = flushLevel(divided);
-    const lost = Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled)));
+    const dividedLevel = flushLevel(divided, block, scaling, limits, t);
+    const lost = Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled, block, scaling, limits, t)));
     putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   putGraded(list, limits, "gradients", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+}
+
+// The flush level in a gradient profile's own units: the bound, moved by the profile's own per-tensor scale; under block
+// scales, the floor of a scale clamped at 2^-127 (a block's own flushing does not move with a common factor). A function,
+// not a closure per site.
+function flushLevel(profile: MagnitudeProfile, block: BlockScaledRisk | null, scaling: "none" | "tensor" | "block", limits: RangeLimits, t: RiskThresholds): number {
+  return block !== null
+    ? block.smallestScale * limits.flushBound
+    : scaling === "tensor"
+      ? limits.flushBound * 2 ** -perTensorScaleLog2(profileStatistics(profile, t).max, limits.maxFinite)
+      : limits.flushBound;
 }
 
 // Adam's update m/(√v + ε): ε = 1e-8 rounds to 0 in binary16 (SCIENCE.md §3.3). Where the stored second moment

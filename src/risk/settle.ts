@@ -4,8 +4,8 @@
  * probability of passing the overflow level, far under anything reported. A closed-form upper bound below
  * {@link SETTLED} reports such a number as 0, within 1e-12 absolute of the integral (the accuracy README gives the
  * shares); an overflow probability whose lower bound is above 1 − {@link SETTLED} is reported as 1. Only the Gaussian
- * magnitude laws (gaussian, half-gaussian, bounded below its bound) are settled; every other case returns NaN and is
- * integrated as before.
+ * magnitude laws (gaussian, half-gaussian, bounded below its bound) are settled; every other case returns
+ * {@link UNSETTLED} and is integrated as before.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { normalLogSf, normalSf } from "../numeric/normal.js";
@@ -18,6 +18,9 @@ import { LN2 } from "./_math.js";
  * src/risk/bounds.ts takes it).
  */
 export const SETTLED = 1e-13;
+
+/** What the settle functions return for a number they cannot settle: −1, a small integer (NaN would be a heap number per call). */
+export const UNSETTLED = -1;
 
 // The draw beyond which the draws carry less than SETTLED/4 of the mass, Q(7.65) = 1.0e-14: past it an integrand is
 // at most 1 (an upper bound) or at least 0 (a lower one).
@@ -56,36 +59,36 @@ function capSettled(c: number, m: number): boolean {
 
 /**
  * 0 when the expected share of nonzero elements at or below t ({@link fractionBelow}) is provably under SETTLED,
- * else NaN. Per draw r the share is erf(t/(r√2)) ≤ √(2/π)·t/r, with t/r = (t/rms)·e^{−S·ln2·z}.
+ * else UNSETTLED. Per draw r the share is erf(t/(r√2)) ≤ √(2/π)·t/r, with t/r = (t/rms)·e^{−S·ln2·z}.
  */
 export function settledBelow(profile: MagnitudeProfile, t: number): number {
-  if (!gaussianAt(profile, t)) return NaN;
+  if (!gaussianAt(profile, t)) return UNSETTLED;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
-  return capSettled((DENSITY * t) / profile.rms, spread * LN2) ? 0 : NaN;
+  return capSettled((DENSITY * t) / profile.rms, spread * LN2) ? 0 : UNSETTLED;
 }
 
 /**
  * 0 when the expected share of the squared norm at or below t ({@link energyBelow}) is provably under SETTLED, else
- * NaN: per draw at most √(2/π)·(t/r)³/3.
+ * UNSETTLED: per draw at most √(2/π)·(t/r)³/3.
  */
 export function settledEnergyBelow(profile: MagnitudeProfile, t: number): number {
-  if (!gaussianAt(profile, t)) return NaN;
+  if (!gaussianAt(profile, t)) return UNSETTLED;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
   const a = t / profile.rms;
-  return capSettled((DENSITY / 3) * a * a * a, 3 * spread * LN2) ? 0 : NaN;
+  return capSettled((DENSITY / 3) * a * a * a, 3 * spread * LN2) ? 0 : UNSETTLED;
 }
 
 /**
  * 0 or 1 when the probability that some of the n nonzero elements reach t in a step ({@link probabilityAnyAbove},
- * both signs) is provably within SETTLED of it, else NaN. The integrand rises with the draw. Above: at most
+ * both signs) is provably within SETTLED of it, else UNSETTLED. The integrand rises with the draw. Above: at most
  * Q(z₀) + n·P(|Z| ≥ u₀) at z₀ = FAR_DRAW, u₀ the threshold in units of the scale drawn there, with
  * P(|Z| ≥ u) ≤ e^{−u²/2} (Chernoff). Below: at least (1 − Q(z₀))·(1 − e^{−n·p₁}), p₁ = P(|Z| ≥ u₁) at −z₀, with
  * P(|Z| ≥ u) ≥ 2φ(u)·u/(u² + 1) (Gordon's inequality, Gordon 1941, Ann. Math. Statist. 12(3); from memory) and
  * P(|Z| ≥ u) ≥ 1 − √(2/π)·u (the density at most φ(0)), the larger of the two.
  */
 export function settledAnyAbove(profile: MagnitudeProfile, t: number, n: number): number {
-  if (!gaussianAt(profile, t)) return NaN;
-  if (!(t > 0) || !(n > 0)) return NaN;
+  if (!gaussianAt(profile, t)) return UNSETTLED;
+  if (!(t > 0) || !(n > 0)) return UNSETTLED;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
   const a = t / profile.rms;
   const far = spread * LN2 * FAR_DRAW;
@@ -97,5 +100,5 @@ export function settledAnyAbove(profile: MagnitudeProfile, t: number, n: number)
   const low = a * Math.exp(far);
   const logTail = Math.max(Math.log((2 * low) / (low * low + 1)) - (low * low) / 2 - 0.5 * Math.log(2 * Math.PI), Math.log1p(-Math.min(1, DENSITY * low)));
   if (logN + logTail >= LOG_ENOUGH) return 1;
-  return NaN;
+  return UNSETTLED;
 }

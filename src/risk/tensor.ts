@@ -18,7 +18,7 @@ import {
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { settledAnyAbove, settledBelow, settledEnergyBelow } from "./settle.js";
+import { settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { isEmpty, nonzeroElements } from "./laws.js";
 import { smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -333,17 +333,18 @@ function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: Prof
   if (isEmpty(profile)) return withNoise(profileRisk(profile, limits, stats), profile, limits, false);
   const flushBound = limits.flushBound;
   // the larger threshold first: a share settled there is settled at the flush bound too
-  let belowNormal = flushBound >= limits.minNormal ? NaN : settledBelow(profile, limits.minNormal);
+  // (UNSETTLED, −1, where a bound does not settle the number)
+  let belowNormal = flushBound >= limits.minNormal ? UNSETTLED : settledBelow(profile, limits.minNormal);
   let flushedFraction = belowNormal === 0 ? 0 : settledBelow(profile, flushBound);
   const settled = flushedFraction === 0;
-  if (flushedFraction !== flushedFraction) flushedFraction = fractionBelow(profile, flushBound);
+  if (flushedFraction < 0) flushedFraction = fractionBelow(profile, flushBound);
   if (flushBound >= limits.minNormal) belowNormal = flushedFraction;
-  else if (belowNormal !== belowNormal) belowNormal = fractionBelow(profile, limits.minNormal);
+  else if (belowNormal < 0) belowNormal = fractionBelow(profile, limits.minNormal);
   // the flushed elements are the smallest, so their share of the squared norm is at most their share of the elements
   let flushedEnergy = settled ? 0 : settledEnergyBelow(profile, flushBound);
-  if (flushedEnergy !== flushedEnergy) flushedEnergy = energyBelow(profile, flushBound);
+  if (flushedEnergy < 0) flushedEnergy = energyBelow(profile, flushBound);
   let overflowRisk = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
-  if (overflowRisk !== overflowRisk) overflowRisk = probabilityAnyAbove(profile, limits.overflowLevel);
+  if (overflowRisk < 0) overflowRisk = probabilityAnyAbove(profile, limits.overflowLevel);
   const subnormalFraction = Math.max(0, belowNormal - flushedFraction);
   return {
     flushedFraction,

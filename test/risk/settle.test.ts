@@ -4,7 +4,7 @@ import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/typ
 import { erfc, normalPdf } from "../../src/numeric/normal.js";
 import { FORMATS } from "../../src/formats/index.js";
 import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove, profileRisk, profileStatistics, rangeLimits } from "../../src/risk/profile.js";
-import { SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow } from "../../src/risk/settle.js";
+import { SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "../../src/risk/settle.js";
 import { subnormalNoise } from "../../src/risk/subnormal-noise.js";
 import { riskProfile, tensorFormatRisk, tensorStatistics } from "../../src/risk/tensor.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
@@ -91,19 +91,19 @@ describe("settled shares and probabilities (src/risk/settle.ts)", () => {
         const n = nonzeroElements(profile);
         if (!(n > 0)) return;
         const share = settledBelow(profile, t);
-        if (!Number.isNaN(share)) {
+        if (share !== UNSETTLED) {
           settled++;
           expect(share).toBe(0);
           expect(fractionBelow(profile, t)).toBeLessThanOrEqual(1e-12);
         }
         const energyShare = settledEnergyBelow(profile, t);
-        if (!Number.isNaN(energyShare)) {
+        if (energyShare !== UNSETTLED) {
           settled++;
           expect(energyShare).toBe(0);
           expect(energyBelow(profile, t)).toBeLessThanOrEqual(1e-12);
         }
         const overflow = settledAnyAbove(profile, t, n);
-        if (!Number.isNaN(overflow)) {
+        if (overflow !== UNSETTLED) {
           settled++;
           if (overflow === 1) ones++;
           expect(Math.abs(probabilityAnyAbove(profile, t) - overflow)).toBeLessThanOrEqual(1e-12);
@@ -133,7 +133,7 @@ describe("settled shares and probabilities (src/risk/settle.ts)", () => {
           expect(fineDraws(rms, log2Spread, (r) => energy(r, t))).toBeLessThan(SETTLED);
         }
         const overflow = settledAnyAbove(profile, t, n);
-        if (!Number.isNaN(overflow)) {
+        if (overflow !== UNSETTLED) {
           settled++;
           expect(Math.abs(fineDraws(rms, log2Spread, (r) => anyOf(above(r, t), n)) - overflow)).toBeLessThan(SETTLED);
         }
@@ -153,13 +153,13 @@ describe("settled shares and probabilities (src/risk/settle.ts)", () => {
         { ...base, shape: "log-normal", elementLog2Spread: 2 },
         { ...base, shape: "log-normal" },
       ] as MagnitudeProfile[]) {
-        expect(settledBelow(profile, t)).toBeNaN();
-        expect(settledEnergyBelow(profile, t)).toBeNaN();
-        expect(settledAnyAbove(profile, t, 4096)).toBeNaN();
+        expect(settledBelow(profile, t)).toBe(UNSETTLED);
+        expect(settledEnergyBelow(profile, t)).toBe(UNSETTLED);
+        expect(settledAnyAbove(profile, t, 4096)).toBe(UNSETTLED);
       }
       const capped: MagnitudeProfile = { ...base, shape: "gaussian", bound: t };
-      expect(settledBelow(capped, t)).toBeNaN();
-      expect(settledEnergyBelow(capped, t)).toBeNaN();
+      expect(settledBelow(capped, t)).toBe(UNSETTLED);
+      expect(settledEnergyBelow(capped, t)).toBe(UNSETTLED);
     }
     // far from the rms a Gaussian is settled at once: the check that the cases above are refused, not missed
     const gaussian: MagnitudeProfile = { ...base, shape: "gaussian" };
