@@ -195,8 +195,13 @@ export function correlatedSum(
   crossCorrelation = sampleCorrelation,
 ): number {
   const terms = batch * positions;
-  // a sum forced to zero (a gradient below batch norm summed over its batch) has no second moment left
-  return Math.max(terms * q * (1 + (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation, crossCorrelation)), 0);
+  const pairs = (terms - 1) * meanPairCorrelation(batch, positions, sampleCorrelation, positionCorrelation, crossCorrelation);
+  const factor = 1 + pairs;
+  // a sum forced to zero (a gradient below batch norm summed over its batch and pixels) has no second moment left:
+  // pair correlations that cancel the 1 to within the rounding of their own sum leave only that rounding (a few ulp of
+  // 1 + |pairs|; own algebra), which would stand for a gradient of about 1e-8 of the terms' rms
+  if (factor <= 64 * Number.EPSILON * (1 + Math.abs(pairs))) return 0;
+  return terms * q * factor;
 }
 
 /**
