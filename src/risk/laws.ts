@@ -874,11 +874,11 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
 // TABLE_POINTS nearest x_k on each of the TABLE_POINTS nearest rows, then through those in the spread (Abramowitz &
 // Stegun 25.2.15 for the error term), in log F, so small shares keep their relative accuracy, and past ROWS_UPPER_SHARE
 // in log C, so shares near 1 keep the digits of their complement. Where a point is 0 (or its complement), outside the
-// spreads TABLE_MIN_SPREAD … TABLE_MAX_SPREAD and far outside the draws, the direct rule decides.
+// spreads TABLE_MIN_SPREAD … TABLE_MAX_SPREAD (0.25 … 8.5) and far outside the draws, the direct rule decides.
 // test/risk/share-tables.test.ts holds the rows to a fine quadrature of the integral and to the direct rule where that
 // rule's ripple is below 1e-7.
 const TABLE_MIN_SPREAD = 0.25;
-const TABLE_MAX_SPREAD = 8;
+const TABLE_MAX_SPREAD = 8.5;
 const ROWS_UPPER_SHARE = 0.9;
 const LOG_UPPER_SHARE = Math.log(ROWS_UPPER_SHARE);
 // below this spread the complement's log bends too fast in the spread (about as −c/s²) for the rows' polynomial
@@ -1293,8 +1293,9 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
  * {@link mixtureCrossing} of a profile's element law without its bound, at r = 1 and t = 2^v:
  * g(v) = anyOf(above(1, 2^v), n) (`measure` "any-above", decreasing) or below(1, 2^v) ("below", increasing), the
  * law of {@link elementLaw} for the profile without `bound` (shape "bounded" read as "gaussian"). The Gaussian
- * "below" mixture is read off the shared rows of the draw integral where they cover the spread; `viaRows` false
- * sums it on the search's own lattice (the reference the rows are held to in the tests). The "any-above" level is
+ * "below" mixture is read off the shared rows of the draw integral where they cover the spread, and from spread 0.5 to
+ * 8 its level off a table of the rows' exact crossings (lowTableValue); `viaRows` false sums it on the search's own
+ * lattice (the reference the rows are held to in the tests). The "any-above" level is
  * solved on {@link lawOverDraws}' any-above sums themselves (anyAboveLevel), so the probability there is p; for the
  * Gaussian laws with 64 elements or more at spreads 0.5 to 8 it is read off a table of those levels (within 1e-6
  * binade of the search, see levelTableValue), which `viaRows` false leaves aside.
@@ -1313,6 +1314,10 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
       if (level === level) return level;
     }
     return anyAboveLevel(spread, p);
+  }
+  if (!decreasing && viaRows && integrandLaw === GAUSSIAN && spread >= LOW_MIN_SPREAD && spread <= LOW_MAX_SPREAD && p > 0 && p < 1) {
+    const level = lowTableValue(spread, p);
+    if (level === level) return level;
   }
   // the share below a level does not depend on the element count: tensors of one spread and law share it
   const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
@@ -2076,4 +2081,67 @@ function levelTableValue(spread: number, p: number): number {
     result += (S_WEIGHTS[r] as number) * sum;
   }
   return result;
+}
+
+// Tables of the Gaussian "below" levels (the predicted low magnitude): the level where the share below is p depends on
+// p and the spread alone, and the share read off the rows is smooth in both, so its crossing is too (the lattice search
+// crosses the log-linear interpolant between lattice points spread/8 apart instead: up to 3e-4 binade off the crossing
+// at spread 8, 1e-5 at 2, measured). For each p a check meets, points at the spreads a/16 hold the crossing of the
+// rows' share, found by bisection to 1e-12 binade, filled lazily once per process, and a level at s is the Lagrange
+// polynomial through the 8 nearest (Abramowitz & Stegun 25.2.15). A table of a mathematical function of p.
+// test/risk/share-tables.test.ts holds the levels to the crossing of a fine quadrature of the integral.
+const LOW_MIN_SPREAD = 0.5;
+// (its 8 rows of crossings then lie within the shares' rows)
+const LOW_MAX_SPREAD = TABLE_MAX_SPREAD - 0.5;
+const LOW_TABLES = new Map<number, Window>();
+const LOW_WEIGHTS = new Float64Array(SPREAD_POINTS);
+function lowTableValue(spread: number, p: number): number {
+  let row = LOW_TABLES.get(p);
+  if (row === undefined) {
+    row = emptyWindow();
+    LOW_TABLES.set(p, row);
+  }
+  const v = spread / ROW_STEP;
+  const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
+  if (!(firstRow >= row.base && firstRow + SPREAD_POINTS - 1 < row.base + row.values.length)) coverWindow(row, firstRow, firstRow + SPREAD_POINTS - 1);
+  const at = firstRow - row.base;
+  for (let r = 0; r < SPREAD_POINTS; r++) {
+    if (row.values[at + r] !== row.values[at + r]) row.values[at + r] = rowCrossing((firstRow + r) * ROW_STEP, p);
+  }
+  lagrangeWeights(LOW_WEIGHTS, S_SCALE, v - firstRow);
+  let result = 0;
+  for (let r = 0; r < SPREAD_POINTS; r++) result += (LOW_WEIGHTS[r] as number) * (row.values[at + r] as number);
+  return result;
+}
+// the x where the rows' share below at spread s is p (NaN where the rows do not serve the bracket): bracketed by steps
+// of a binade from the share's linear start (as lawMixtureCrossing starts), then bisected
+function rowCrossing(s: number, p: number): number {
+  const share = (x: number): number => gaussianTableValue(BELOW, s, x);
+  let lo = Math.log2(p / Math.sqrt(2 / Math.PI)) - (s * s * LN2) / 2;
+  let hi = lo;
+  let value = share(lo);
+  if (!(value === value)) return NaN;
+  if (value < p) {
+    for (let jump = 1; ; jump *= 2) {
+      hi = lo + jump;
+      value = share(hi);
+      if (!(value === value) || jump > 1024) return NaN;
+      if (value >= p) break;
+      lo = hi;
+    }
+  } else {
+    for (let jump = 1; ; jump *= 2) {
+      lo = hi - jump;
+      value = share(lo);
+      if (!(value === value) || jump > 1024) return NaN;
+      if (value < p) break;
+      hi = lo;
+    }
+  }
+  for (let i = 0; i < 100 && hi - lo > 1e-12; i++) {
+    const middle = 0.5 * (lo + hi);
+    if (share(middle) >= p) hi = middle;
+    else lo = middle;
+  }
+  return 0.5 * (lo + hi);
 }

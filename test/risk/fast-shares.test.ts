@@ -126,13 +126,13 @@ describe("the fast Gaussian shares over draws", () => {
   });
 
   // the levels of the low quantile read off the rows, against the search on its own lattice (viaRows false)
-  // (to a spread of 2: past it the lattice's own sums carry the direct rule's ripple, and test/risk/share-tables.test.ts
-  // holds the levels to the integral)
-  it("give the low-quantile levels within 1e-6 binade of the search on its own lattice, to a spread of 2", () => {
+  // (below a spread of 0.5: from there the levels are read off a table of the rows' exact crossings, which
+  // test/risk/share-tables.test.ts holds to the integral)
+  it("give the low-quantile levels within 1e-6 binade of the search on its own lattice, below a spread of 0.5", () => {
     fc.assert(
       fc.property(
         fc.constantFrom(...gaussianShapes),
-        fc.double({ min: 0.25, max: 2, noNaN: true }),
+        fc.double({ min: 0.25, max: 0.4999, noNaN: true }),
         fc.double({ min: -5, max: -0.5, noNaN: true }),
         (shape, log2Spread, pLog10) => {
           const profile = profileOf(shape, log2Spread, 1000, 1);
