@@ -442,12 +442,18 @@ function disagreementLines(comparison: Comparison): string[] {
   // the header counts every measured tensor; only those with a prediction can disagree with it: name the rest
   const rest = measuredOnly.length === 0 ? "" : ` (the other ${measuredOnly.length} measured ${measuredOnly.length === 1 ? "is an inner tensor" : "are inner tensors"} with no prediction)`;
   const out = [
-    `Where prediction and measurement disagree (beyond ${tolerance.binades} binade in rms or ${tolerance.flushed} in the share zero after storage): ${disagreements.length} of the ${rows.length} tensors with a prediction${rest}`,
+    `Where prediction and measurement disagree (beyond ${tolerance.binades} binade in rms or ${tolerance.flushed} in the share zero after storage${levelWords(tolerance.flushedLevels)}): ${disagreements.length} of the ${rows.length} tensors with a prediction${rest}`,
   ];
   const list = disagreements.slice(0, 20);
   for (const r of list) out.push(`  - ${describe(r)}`);
   if (disagreements.length > list.length) out.push(`  … and ${disagreements.length - list.length} more (see --json)`);
   return out;
+}
+
+// the verdict levels of the flushed share, as the header says them
+function levelWords(levels: readonly number[] | undefined): string {
+  if (levels === undefined || levels.length === 0) return "";
+  return `, or on two sides of check's ${levels.map((l) => `${l * 100}%`).join(" or ")} of nonzero elements flushed, a factor of 2 apart`;
 }
 
 function describe(r: ComparisonRow): string {
@@ -456,7 +462,12 @@ function describe(r: ComparisonRow): string {
   const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
   const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
   const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)`;
-  return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}`;
+  const nonzero = (share: number, zeros: number) => (zeros < 1 ? share / (1 - zeros) : 0);
+  const [flushedMeasured, flushedPredicted] = [nonzero(m.counts.flushed, m.zeroFraction), nonzero(r.predictedFlushed, r.predictedZeroFraction)];
+  const flushedText = !Number.isNaN(flushedPredicted) && flushedMeasured !== flushedPredicted
+    ? `; nonzero elements flushed ${share(flushedMeasured)} measured, ${share(flushedPredicted)} predicted`
+    : "";
+  return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}`;
 }
 
 function stepLines(result: SimulationResult): string[] {

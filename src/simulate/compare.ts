@@ -29,10 +29,28 @@ export interface Tolerance {
   binades: number;
   /** |measured − predicted| share of elements zero after storage (exact zeros plus flushed values) */
   flushed: number;
+  /**
+   * shares of the nonzero elements flushed at which check's verdict on a tensor changes: a row also disagrees when the
+   * measured and predicted shares lie on different sides of one of them and differ by more than a factor of 2 (the
+   * verdict would differ, however small the share of all elements)
+   */
+  flushedLevels?: readonly number[];
 }
 
-/** The standing tolerance: half a binade (a factor of about 1.41) and 0.05 of the elements flushed. */
-export const STANDING_TOLERANCE: Tolerance = { binades: 0.5, flushed: 0.05 };
+/**
+ * The issue's standing tolerance: half a binade (a factor of about 1.41) and 0.05 of the elements flushed, and check's
+ * flushed-share thresholds (1% at risk, 10% fails: DEFAULT_THRESHOLDS in src/risk/catalogue.ts, which simulate does not
+ * import; test/simulate/compare-levels.test.ts holds them equal).
+ */
+export const STANDING_TOLERANCE: Tolerance = { binades: 0.5, flushed: 0.05, flushedLevels: [0.01, 0.1] };
+
+/** Whether a measured and a predicted share of nonzero elements flushed fall on two sides of a verdict level, a factor of 2 apart. */
+export function crossesFlushedLevel(measured: number, predicted: number, levels: readonly number[] = []): boolean {
+  if (!(measured >= 0) || !(predicted >= 0)) return false;
+  const [low, high] = measured < predicted ? [measured, predicted] : [predicted, measured];
+  if (!(high > 2 * low)) return false;
+  return levels.some((level) => low <= level && high > level);
+}
 
 /** One tensor, measured and predicted side by side. */
 export interface ComparisonRow {
@@ -118,6 +136,11 @@ export function predictedOverflowFraction(profile: MagnitudeProfile, format: For
   return (1 - profile.zeroFraction) * (1 - fractionBelow(profile, format.overflowThreshold));
 }
 
+// a share of all elements as a share of the nonzero ones (exact zeros before storage set apart)
+function nonzeroShare(share: number, zeroFraction: number): number {
+  return zeroFraction < 1 ? share / (1 - zeroFraction) : 0;
+}
+
 /**
  * Pair a simulation's tensors with a prediction for the simulated network (and, optionally, one for the
  * full-size network) and find where they disagree.
@@ -162,7 +185,8 @@ export function compareWithPrediction(
       predictedOverflow: predictedOverflowFraction(p.start, format),
       disagrees:
         !(Math.abs(differenceBinades) <= tolerance.binades) ||
-        (!Number.isNaN(predictedFlushed) && !(Math.abs(zeroAfterStorage(m) - (p.start.zeroFraction + predictedFlushed)) <= tolerance.flushed)),
+        (!Number.isNaN(predictedFlushed) && !(Math.abs(zeroAfterStorage(m) - (p.start.zeroFraction + predictedFlushed)) <= tolerance.flushed)) ||
+        (!Number.isNaN(predictedFlushed) && crossesFlushedLevel(nonzeroShare(m.counts.flushed, m.zeroFraction), nonzeroShare(predictedFlushed, p.start.zeroFraction), tolerance.flushedLevels)),
     };
     const f = full.get(measured.id);
     if (f !== undefined && result.shrink.shrunk) {
