@@ -144,7 +144,9 @@ class Phase {
       phase,
       ledger: build && source === null,
       details: build,
-      variance: (w) => this.endVariance.get(w) ?? w.variance * growth2,
+      // only zero-initialised weights have an end variance of their own (prepareWeights), and only at the end: the
+      // others skip the look-up (w.variance · 1 is w.variance itself)
+      variance: phase === "end" ? (w) => (w.distribution === "zeros" ? (this.endVariance.get(w) ?? w.variance * growth2) : w.variance * growth2) : (w) => w.variance,
       moments: activationMoments,
     };
   }
