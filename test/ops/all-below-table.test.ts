@@ -40,6 +40,22 @@ describe("allBelowZero with tabled nodes", () => {
     }
   });
 
+  it("keeps every (c, n) apart in its memo: one correlation at many counts, many correlations, each twice", () => {
+    // one u ≤ 0 has probability 1/2 whatever c is, two Sheppard's value (Sheppard 1899): a memo keyed on c alone, or
+    // one slot answering for another key, would give one count's value for another
+    for (let k = 1; k < 400; k++) {
+      const c = k / 400;
+      expect(allBelowZero(c, 2)).toBeCloseTo(0.25 + Math.asin(c) / (2 * Math.PI), 6);
+      expect(allBelowZero(c, 1)).toBeCloseTo(0.5, 6);
+    }
+    for (let k = 1; k < 400; k++) {
+      const c = k / 400;
+      expect(allBelowZero(c, 1)).toBe(direct(c, 1));
+      expect(allBelowZero(c, 2)).toBe(direct(c, 2));
+      expect(allBelowZero(c, 3)).toBe(direct(c, 3));
+    }
+  });
+
   it("meets Sheppard's two-variable orthant probability (Sheppard 1899) and 2^−n at c = 0", () => {
     for (const c of [0.1, 0.3, 0.5, 0.7, 0.9]) expect(allBelowZero(c, 2)).toBeCloseTo(0.25 + Math.asin(c) / (2 * Math.PI), 6);
     expect(allBelowZero(0, 10)).toBe(Math.pow(2, -10));

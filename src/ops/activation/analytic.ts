@@ -116,9 +116,23 @@ export function crossMoments(
   return { value: a0 + a1 * c + rest * c * c, derivative: m.derivativeMean * m.derivativeMean + dRest * c * c };
 }
 
-/** Memo of allBelowZero by n, then by c (number keys: no string to build per call). */
-const allBelowCache = new Map<number, Map<number, number>>();
-let allBelowCached = 0;
+/**
+ * Memo of allBelowZero in a direct-mapped table keyed on the bits of c and on n (a slot per hash; a collision replaces
+ * the older entry): most calls of a fresh prediction miss, and a table look-up costs less than the maps by n and c it
+ * replaces. A hit returns the very sum stored, so results do not change.
+ */
+const ALL_BELOW_SLOTS = 4096;
+const allBelowC = new Float64Array(ALL_BELOW_SLOTS).fill(NaN);
+const allBelowN = new Float64Array(ALL_BELOW_SLOTS);
+const allBelowValue = new Float64Array(ALL_BELOW_SLOTS);
+const allBelowProbe = new Float64Array(1);
+const allBelowBits = new Uint32Array(allBelowProbe.buffer);
+
+function allBelowSlot(c: number, n: number): number {
+  allBelowProbe[0] = c;
+  const h = Math.imul((allBelowBits[0] as number) ^ Math.imul(allBelowBits[1] as number, 0x9e3779b1), 0x85ebca6b) ^ Math.imul(n | 0, 0xc2b2ae35);
+  return (h ^ (h >>> 15)) & (ALL_BELOW_SLOTS - 1);
+}
 
 const ALL_BELOW_LIMIT = 9;
 const ALL_BELOW_PANELS = 12;
@@ -182,9 +196,8 @@ export function allBelowZero(c: number, n: number): number {
   if (!(n >= 1)) return 1;
   if (!(c > 0)) return Math.pow(2, -n);
   if (c >= 1) return 0.5;
-  let byC = allBelowCache.get(n);
-  const hit = byC?.get(c);
-  if (hit !== undefined) return hit;
+  const slot = allBelowSlot(c, n);
+  if (allBelowC[slot] === c && allBelowN[slot] === n) return allBelowValue[slot] as number;
   const r = Math.sqrt(c / (1 - c));
   const { x, w, wPdf, cdfBelow } = allBelowNodes();
   // in u, below −9 every u_i is surely ≤ 0 and the density integrates to Φ(−9/r)
@@ -200,17 +213,9 @@ export function allBelowZero(c: number, n: number): number {
   } else {
     for (let k = 0; k < x.length; k++) sum += (wPdf[k] as number) * Math.pow(normalCdf(-r * (x[k] as number)), n);
   }
-  if (allBelowCached > 4096) {
-    allBelowCache.clear();
-    allBelowCached = 0;
-    byC = undefined;
-  }
-  if (byC === undefined) {
-    byC = new Map();
-    allBelowCache.set(n, byC);
-  }
-  byC.set(c, sum);
-  allBelowCached++;
+  allBelowC[slot] = c;
+  allBelowN[slot] = n;
+  allBelowValue[slot] = sum;
   return sum;
 }
 
