@@ -463,7 +463,32 @@ export function directLawOverDraws(profile: MagnitudeProfile, measure: "any-abov
 function anyAboveOverDraws(rms: number, log2Spread: number, t: number): number {
   const x = Math.log2(t) - Math.log2(rms);
   if (!(log2Spread > 0) || !Number.isFinite(x)) return integrand(rms);
+  const reached = anyAboveReached(x, log2Spread);
+  if (reached === reached) return reached;
   return anyAboveSum(x, log2Spread, anyRule(log2Spread));
+}
+
+// A threshold far below the scale is reached in every draw but the lowest: g(v) = anyOf(share·above(1, 2^v), n) falls
+// as v grows, so I(x) = E_z[g(x − s·z)] ≥ g(v₀)·P(z ≥ (x − v₀)/s), and at v₀ = x + REACHED_Z·s that is g(v₀)·(1 − Q(8.5))
+// (Q(8.5) = 9.5e-18, src/numeric's normalSf), while I ≤ A = anyOf(share, n). When the lower bound is within
+// REACHED_GAP of A the sum is A to that (as the rules' own sums end there, clamped at A): two law evaluations instead
+// of a sum that walks the whole step (a third of a fresh 1,000-layer check's any-above time went to thresholds 2^−39
+// below the scale). The tail share is taken REACHED_FIT lower than the law gives, as the risk module's erfc fit is
+// good to 1.2e-7 of itself (_math.ts): a bound on the true g, not on the fit's.
+const REACHED_Z = 8.5;
+const REACHED_MASS = 1 - preciseNormalSf(REACHED_Z);
+const REACHED_FIT = 1e-6;
+const REACHED_GAP = 1e-15;
+// A when the bound above decides the any-above sum of the current integrand at (x, s), else NaN
+function anyAboveReached(x: number, s: number): number {
+  const v = x + REACHED_Z * s;
+  // g(v) near A needs a tail share near 1 (at v = 0 the Gaussian's is 0.32): no law evaluation past the scale
+  if (!(v < 0)) return NaN;
+  const n = integrandCount;
+  const limit = anyOf(integrandShare, n);
+  if (!(limit > 0)) return NaN;
+  const lower = anyOf(integrandShare * lawAbove(1, 2 ** v) * (1 - REACHED_FIT), n) * REACHED_MASS;
+  return lower >= limit * (1 - REACHED_GAP) ? limit : NaN;
 }
 
 /**

@@ -147,6 +147,40 @@ describe("any-above draw sums", () => {
     expect(worst).toBeLessThan(1e-8);
   });
 
+  // Thresholds far below the scale (2^−39 of it in the 1,000-layer check) are reached in every draw but the lowest,
+  // and the sum answers the limit A = anyOf(share, n) from a lower bound without summing: wherever a sum answers A, the
+  // definition's integral must be within 1e-13 of it for 100 elements and more (a bound taken too close to the step
+  // would answer A where the integral is visibly less).
+  it("answer their limit only where the definition's integral is that limit to 1e-13 (property over laws, counts, spreads, thresholds)", () => {
+    let answeredLimit = 0;
+    fc.assert(
+      fc.property(
+        fc.constantFrom(...CASES),
+        // on even grids (fc.double favours the ends of its range and 0): counts 10^(k/16) to 10^12, spreads 1/32 to
+        // 8.5, thresholds in eighths of a binade from 2^−80 of the scale to 2^4
+        fc.integer({ min: 0, max: 192 }),
+        fc.integer({ min: 1, max: 272 }),
+        fc.integer({ min: -640, max: 32 }),
+        (c, k, j, eighths) => {
+          const n = 10 ** (k / 16);
+          const spread = j / 32;
+          const x = eighths / 8;
+          const rms = 0.37;
+          const actual = lawOverDraws(profileOf(c, n, spread, rms), "any-above", rms * 2 ** x, c.positiveOnly);
+          const limit = anyOfReference(c.share, n);
+          if (actual !== limit) return;
+          answeredLimit++;
+          const expected = reference(c.law, c.share, n, spread, x, c.elementSpread);
+          // a few elements: the rules answer A where g is A to the erfc fit's 1.2e-7 (_math.ts), within the 1e-6 goal
+          expect(Math.abs(actual - expected) / expected).toBeLessThan(n >= 100 ? 1e-13 : 1e-6);
+        },
+      ),
+      { numRuns: 200, seed: 20261203 },
+    );
+    // many thresholds of the sweep lie far enough below the scale
+    expect(answeredLimit).toBeGreaterThan(50);
+  });
+
   it("fall as the threshold rises, stay in [0, 1] and within their extreme-draw bounds (property)", () => {
     const shapes = ["gaussian", "half-gaussian", "uniform", "log-normal", "constant"] as const;
     fc.assert(
