@@ -472,8 +472,8 @@ function anyAboveOverDraws(rms: number, log2Spread: number, t: number): number {
 // as v grows, so I(x) = E_z[g(x − s·z)] ≥ g(v₀)·P(z ≥ (x − v₀)/s), and at v₀ = x + REACHED_Z·s that is g(v₀)·(1 − Q(8.5))
 // (Q(8.5) = 9.5e-18, src/numeric's normalSf), while I ≤ A = anyOf(share, n). When the lower bound is within
 // REACHED_GAP of A the sum is A to that (as the rules' own sums end there, clamped at A): two law evaluations instead
-// of a sum that walks the whole step (a third of a fresh 1,000-layer check's any-above time went to thresholds 2^−39
-// below the scale). The tail share is taken REACHED_FIT lower than the law gives, as the risk module's erfc fit is
+// of a sum over the whole step (a fifth of a fresh 1,000-layer check's any-above sums are at thresholds 2^−39 below the
+// scale). The tail share is taken REACHED_FIT lower than the law gives, as the risk module's erfc fit is
 // good to 1.2e-7 of itself (_math.ts): a bound on the true g, not on the fit's.
 const REACHED_Z = 8.5;
 const REACHED_MASS = 1 - preciseNormalSf(REACHED_Z);
