@@ -247,7 +247,8 @@ export function evaluateHazard(
         kind: worse.kind,
         severity: verdict,
         format: worse.format,
-        subject,
+        // a layer's weight and bias gradients are summed apart: their findings are told apart by the tensor
+        subject: site.kind === "gradient-sum" && site.tensor !== undefined && subject === site.layer ? site.tensor : subject,
         source: "hazard",
         value: worse.value,
         threshold: worse.threshold,
@@ -357,7 +358,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       );
     case LOSS_SUM_ERROR: {
       const said =
-        `The loss sums ${site.terms} per-example terms in ${format}, the accumulate format: relative rounding error at least ` +
+        `The loss sums ${site.terms} terms (one per sample and position) in ${format}, the accumulate format: relative rounding error at least ` +
         `√n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
       return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`).`;
     }
@@ -659,18 +660,18 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
         ? limits.overflowLevel * 2 ** -perTensorScaleLog2(profileStatistics(summed, t).max, limits.maxFinite)
         : limits.overflowLevel;
   const overflow = probabilityAnyAbove(summed, level);
-  putGraded(list, limits, "gradients", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
+  putGraded(list, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
     overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates), t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
   if (context.workerGradients === "average" && context.workers > 1) {
     const scaled = scaledProfile(input, context.lossScale);
     const divided = scaledProfile(scaled, 1 / context.workers);
     const dividedLevel = flushLevel(divided, block, scaling, limits, t);
     const lost = Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled, block, scaling, limits, t)));
-    putGraded(list, limits, "gradients", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
+    putGraded(list, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
-  putGraded(list, limits, "gradients", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
+  putGraded(list, limits, "gradientSums", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
 }
 

@@ -298,6 +298,24 @@ function judgedFormats(plan: PrecisionPlan, options: CheckOptions): FormatName[]
 }
 
 /**
+ * The tensors as the plan stores them. A plan that sums the gradients of several workers or accumulation steps in a
+ * format of its own (`gradient-sums`) holds each micro-batch's weight gradient in the gradient format and the combined
+ * one only in the sum buffer: those weight gradients are judged at one contribution (their gradient-sum site's input,
+ * at the start and the end), the sum by its site. Otherwise the tensors as predicted (the combined gradient, stored in
+ * the gradient format).
+ */
+export function storedTensors(prediction: Prediction, plan: PrecisionPlan): readonly TensorPrediction[] {
+  if (gradientSumFormat(plan) === plan.gradients) return prediction.tensors;
+  const sites = new Map<string, HazardSite>();
+  for (const site of prediction.hazards) if (site.kind === "gradient-sum" && site.tensor !== undefined) sites.set(site.tensor, site);
+  if (sites.size === 0) return prediction.tensors;
+  return prediction.tensors.map((t) => {
+    const site = t.role === "weight-gradient" ? sites.get(t.id) : undefined;
+    return site === undefined ? t : { ...t, start: site.input, end: site.end?.input ?? site.input };
+  });
+}
+
+/**
  * Judge a prediction (from the magnitude engine, or measured) against the spec's plan. This is `check` after the
  * prediction step; it lets a caller judge a prediction it made or adjusted itself.
  */
@@ -311,7 +329,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const scales = settingScales(given, settings, options);
   for (let i = 0; i < settings.length; i++) (settings[i] as FormatSetting).lossScale = (scales[i] as AppliedLossScale).value;
   const lossScale = scales[0] as AppliedLossScale;
-  const tensors = judgeTensors(prediction.tensors, settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
+  const tensors = judgeTensors(storedTensors(prediction, plan), settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
   const allWeightGradients = weightGradientsOf(prediction);
   // only Adam's epsilon count reads them: as its states see them, clipped
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
@@ -376,7 +394,7 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
   const allWeightGradients = weightGradientsOf(prediction);
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
   for (const site of trainingSites(spec, prediction, allWeightGradients, weightGradients)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
-  const tensors = prediction.tensors.filter((t) => LOSS_SCALED_ROLES.includes(t.role));
+  const tensors = storedTensors(prediction, spec.precision).filter((t) => LOSS_SCALED_ROLES.includes(t.role));
   // as judgePrediction passes them to the hazards: clipped
   return { spec, tensors, sites, weightGradients, arrays: storedArrays(tensors) };
 }

@@ -104,7 +104,7 @@ export interface RiskThresholds {
 export interface HazardEvaluation {
   format: FormatName;
   /** which plan entry holds the operation's result */
-  heldIn: "activations" | "gradients" | "optimizerStates" | "accumulate";
+  heldIn: "activations" | "gradients" | "gradientSums" | "optimizerStates" | "accumulate";
   /** what `value` measures */
   measure: "overflow-risk" | "relative-error" | "flushed-energy" | "flushed-share" | "zero-second-moments";
   /** the number judged */

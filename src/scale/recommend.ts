@@ -8,7 +8,7 @@ import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitud
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { gradientProfiles, lossScaleCurveParts, profilesOf, type GradientProfiles, type LossScaleCurveParts } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
-import { energyBelow, limitsFor, probabilityAnyAbove, type RangeLimits } from "../risk/index.js";
+import { energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
@@ -110,9 +110,11 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   const windowOptions = { ...DEFAULT_WINDOW_OPTIONS, ...options.window };
   const format = plan.gradients;
   const limits = gradientLimits(plan, format);
+  // the gradients as the gradient format holds them (one contribution each where the plan sums them apart)
+  const stored = storedTensors(prediction, plan);
   // the gradients' profiles and draw bounds serve every format the answer tries and the simulation's ends
-  const profiles = gradientProfiles(prediction.tensors);
-  const curves = boundedLossScaleCurves(prediction.tensors, limits, profiles);
+  const profiles = gradientProfiles(stored);
+  const curves = boundedLossScaleCurves(stored, limits, profiles);
   // the remedies' windows are this one with tensors set aside: one search serves them all
   const windowWithout = lossScaleWindows(curves, windowOptions);
   const window = windowWithout();
@@ -134,7 +136,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   let dynamic: DynamicScaleResult | null = null;
   if (window.empty || options.simulate === "always") {
     const ids = new Set(curves.map((c) => c.id));
-    gradients = prediction.tensors.filter((t) => ids.has(t.id));
+    gradients = stored.filter((t) => ids.has(t.id));
     // the simulation fills in the other defaults of the settings itself
     const shared = sameTensors(gradients, profiles) ? profiles : undefined;
     dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale, shared), {

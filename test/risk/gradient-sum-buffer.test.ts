@@ -83,6 +83,50 @@ describe("the plan's gradient-sums format", () => {
     expect(planFor({ ...plain, gradientSums: "binary32" }, "binary16").gradientSums).toBe("binary32");
   });
 
+  it("a plan that sums in a format of its own stores one contribution per weight gradient in the gradient format: its window widens by the sum's growth", () => {
+    // invented: a reef-sonar tagger on 256 workers that sum their gradients, 8 accumulation steps (2048 contributions)
+    const text = (sums: string, workers = 256, steps = 8) =>
+      [
+        "name: reef-sonar",
+        "input: { features: 512 }",
+        "training:",
+        "  batch: 1024",
+        "  loss: { kind: cross-entropy, classes: 10, reduction: sum }",
+        `  workers: ${workers}`,
+        "  worker-gradients: sum",
+        `  accumulation-steps: ${steps}`,
+        "  optimizer: { kind: adam, learning-rate: 0.001 }",
+        "  horizon: { steps: 10000, final-loss: 0.5 }",
+        `precision: { activations: binary16, master-weights: binary32${sums === "" ? "" : `, gradient-sums: ${sums}`} }`,
+        "layers:",
+        "  - { type: dense, name: hidden, width: 1024, init: he-normal }",
+        "  - relu",
+        "  - { type: dense, name: out, width: 10, init: glorot-normal }",
+      ].join("\n");
+    const load = (t: string) => {
+      const parsed = parseSpec(t, "reef-sonar.yaml");
+      if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+      return parsed.spec;
+    };
+    const inPlace = check(load(text("")));
+    const apart = check(load(text("binary32")));
+    // each stored weight gradient is its gradient-sum site's one contribution, at the start and the end
+    const sites = new Map(apart.hazards.filter((h) => h.kind === "gradient-sum").map((h) => [h.layer, h] as const));
+    for (const t of apart.tensors.filter((t) => t.role === "weight-gradient")) {
+      const site = inPlace.hazards.find((h) => h.kind === "gradient-sum" && h.detail.startsWith(t.id));
+      expect(site, t.id).toBeDefined();
+      expect(t.start.rms, t.id).toBe(site!.input.rms);
+      expect(t.start.rms, t.id).toBeLessThan(inPlace.tensors.find((u) => u.id === t.id)!.start.rms);
+    }
+    expect(sites.size).toBe(2);
+    // the overflow edge is set by a weight gradient in both: held one contribution at a time it moves up by binades
+    const [a, b] = [inPlace.lossScaleAnswer!.window, apart.lossScaleAnswer!.window];
+    expect(b.highestLog2! - a.highestLog2!).toBeGreaterThanOrEqual(5);
+    // one worker and one step: nothing is summed, so the two plans store and judge the same
+    const single = (sums: string) => check(load(text(sums, 1, 1))).lossScaleAnswer!.window;
+    expect(single("binary32")).toEqual(single(""));
+  });
+
   it("compare counts a sum buffer of its own: the standard 8-bit plan (binary32 sums) pays 4 bytes per parameter more than its e5m2 gradients", () => {
     // bytes per element: e4m3/e5m2 1 (OCP 8-bit spec), binary32 4 (IEEE 754-2019); AdamW keeps two binary32 states
     const eightBit = STANDARD_PLANS.find((p) => p.name === "8-bit with scale factors");

@@ -45,7 +45,7 @@ describe("the rounding error of a gradient sum", () => {
     const { evaluation, finding } = errorOf(sum(4096), context({ gradients: BFLOAT16_FTZ }));
     expect(evaluation?.value).toBe(0.25);
     expect(evaluation?.format).toBe("bfloat16");
-    expect(evaluation?.heldIn).toBe("gradients");
+    expect(evaluation?.heldIn).toBe("gradientSums");
     expect(evaluation?.verdict).toBe("fails");
     expect(finding?.severity).toBe("fails");
     expect(finding?.threshold).toBe(0.1);
