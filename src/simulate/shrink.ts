@@ -89,6 +89,7 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
       for (const s of local) globalPools.delete(s);
     }
   }
+  const globalCopies = new Map<LayerSpec, number>();
   const originals = new Map<LayerSpec, LayerSpec>();
   const cloneList = (list: readonly LayerSpec[]): LayerSpec[] => list.map(cloneLayer);
   function cloneLayer(layer: LayerSpec): LayerSpec {
@@ -119,7 +120,12 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
         break;
       case "average-pool":
       case "max-pool":
-        copy = globalPools.has(layer) ? { ...layer, size: size("global pool windows", layer.size, f.image), stride: div(layer.stride, f.image) } : { ...layer };
+        // a global pool takes a window of 1 for now: its size is its input's once the shrunk network is built
+        copy = { ...layer };
+        if (globalPools.has(layer)) {
+          copy = { ...layer, size: 1, stride: 1 };
+          globalCopies.set(copy, layer.size);
+        }
         break;
       default:
         copy = { ...layer };
@@ -138,6 +144,28 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   else if (input.kind === "tokens") input = { ...input, positions: div(input.positions, f.positions) };
   else input = { ...input, height: div(input.height, f.image), width: div(input.width, f.image) };
   const result: NetworkSpec = { ...spec, input, training, blocks, layers: cloneList(spec.layers) };
+  if (globalCopies.size > 0) {
+    // each global pool covers its shrunk input image whole (the smallest side where a block reuses it), whatever the
+    // image factor did to the sizes in between (a factor that does not divide them rounds)
+    const trial = buildGraph(result);
+    const sides = new Map<LayerSpec, number>();
+    if (trial.ok) {
+      for (const layer of forwardOrder(trial.graph)) {
+        if (!globalCopies.has(layer.spec) || layer.input.layout !== "image") continue;
+        const side = Math.min(layer.input.height, layer.input.width);
+        sides.set(layer.spec, Math.min(side, sides.get(layer.spec) ?? side));
+      }
+    }
+    for (const [copy, from] of globalCopies) {
+      const to = sides.get(copy) ?? div(from, f.image);
+      const pool = copy as LayerSpec & { size: number; stride: number };
+      pool.size = to;
+      pool.stride = to;
+      const seen = sizes.get("global pool windows") ?? new Map<string, [number, number]>();
+      seen.set(`${from}`, [from, to]);
+      sizes.set("global pool windows", seen);
+    }
+  }
 
   // keep fan_in·var_w for fixed-scale initialisations (normal std, uniform limit): multiply by √(fan-in ratio)
   const before = buildGraph(spec);

@@ -260,6 +260,11 @@ layers:
     expect(report.changes.join(" ")).toContain("image 32×32 → 16×16; windows of the pools that cover the whole image 8 → 4");
     // the pool still reduces the map to one pixel
     expect(built.ok && built.graph.layers.find((l) => l.spec.family === "average-pool")?.output).toMatchObject({ layout: "image", height: 1, width: 1 });
+    // a factor that does not divide the sizes: the window is the shrunk map's own side (32 → 11 → 5 → 2)
+    const odd = shrinkSpec(s, { image: 3 });
+    const oddBuilt = buildGraph(odd.spec);
+    expect(oddBuilt.ok && oddBuilt.graph.layers.find((l) => l.spec.family === "average-pool")?.output).toMatchObject({ layout: "image", height: 1, width: 1 });
+    expect(odd.report.changes.join(" ")).toContain("image 32×32 → 11×11; windows of the pools that cover the whole image 8 → 2");
   });
 
   // a YAML key __proto__ is an own property (YAML 1.2 maps; the spec loader keeps it as one); an assignment
