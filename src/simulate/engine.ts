@@ -335,12 +335,17 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
 function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; recorder: Recorder; gradients: Map<string, Float64Array> } {
   const recorder = new Recorder(setup, measure);
   const sums = new Map<string, Float64Array>();
+  // Σ over the micro-batches run of each gradient's squared norm, for the sum of those not run
+  const squares = new Map<string, number>();
   let loss = 0;
   for (let m = 0; m < setup.microBatches; m++) {
     recorder.active = measure && m === 0;
     const r = runMicroBatch(setup, model, recorder);
     if (m === 0) loss = r.loss;
     for (const [key, g] of r.gradients) {
+      let square = 0;
+      for (let i = 0; i < g.length; i++) square += g[i]! * g[i]!;
+      squares.set(key, (squares.get(key) ?? 0) + square);
       const sum = sums.get(key);
       // the first micro-batch's gradient is a fresh array from its kernel, used nowhere else: it becomes the sum
       if (sum === undefined) sums.set(key, g);
@@ -349,20 +354,35 @@ function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; 
   }
   recorder.active = measure;
   const training = setup.spec.training;
-  // micro-batches not run are taken as independent: their sum grows as √count (common practice for independent sums)
-  const rescale = Math.sqrt(setup.wantedMicroBatches / setup.microBatches);
   const average = training.workerGradients === "average" ? 1 / training.workers : 1;
   for (const layer of allLayers(setup.graph.layers)) {
     for (const w of layer.weights) {
       const key = weightKey(layer, w);
       const sum = sums.get(key);
       if (sum === undefined) continue;
-      const k = rescale * average;
+      const k = missingScale(sum, squares.get(key) ?? 0, setup.microBatches, setup.wantedMicroBatches) * average;
       if (k !== 1) for (let i = 0; i < sum.length; i++) sum[i] = sum[i]! * k;
       recorder.store({ id: weightId(layer, w.name, "weight-gradient"), layer: layer.name, role: "weight-gradient", slot: "gradients", shape: w.shape }, sum);
     }
   }
   return { loss, recorder, gradients: sums };
+}
+
+/**
+ * The factor that takes the sum of the m micro-batch gradients run to the size of the sum of all N wanted. The
+ * gradients share an expected part μ and differ by noise of variance σ² per micro-batch: E‖S_N‖² = N²‖μ‖² + N·tr σ²,
+ * with tr σ² ≈ (Σ‖g_i‖² − ‖S_m‖²/m)/(m − 1) and ‖μ‖² ≈ (‖S_m‖² − m·tr σ²)/m² from the ones run (the sample variance
+ * and mean; common practice); the sum run is scaled to that norm. One micro-batch run cannot tell μ from the noise:
+ * its sum is taken as independent parts, √(N/m) (common practice for independent sums).
+ */
+export function missingScale(sum: Float64Array, squares: number, run: number, wanted: number): number {
+  if (wanted <= run) return 1;
+  let norm = 0;
+  for (let i = 0; i < sum.length; i++) norm += sum[i]! * sum[i]!;
+  if (run < 2 || !(norm > 0)) return Math.sqrt(wanted / run);
+  const noise = Math.max(0, (squares - norm / run) / (run - 1));
+  const mean = Math.max(0, (norm - run * noise) / (run * run));
+  return Math.sqrt((wanted * wanted * mean + wanted * noise) / norm);
 }
 
 /** Learning rate at step t (1-based): linear warm-up to the peak, then linear decay to the end value over the horizon (common practice). */
@@ -658,7 +678,11 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
     const { accumulationSteps: A, workers: W } = setup.spec.training;
     list.push(
       `Each step runs ${setup.microBatches} of the ${setup.wantedMicroBatches} micro-batches (${A} accumulation step${A === 1 ? "" : "s"} × ${W} worker${W === 1 ? "" : "s"}); activations and their gradients are measured on the first.` +
-        (setup.microBatches < setup.wantedMicroBatches ? ` The weight-gradient sums are multiplied by √(${setup.wantedMicroBatches}/${setup.microBatches}), taking the missing micro-batches as independent.` : ""),
+        (setup.microBatches < setup.wantedMicroBatches
+          ? setup.microBatches > 1
+            ? ` The weight-gradient sums are scaled to the size of the sum of all ${setup.wantedMicroBatches}: the part the micro-batches run share adds in proportion to the count, the rest as independent noise (√ of the count).`
+            : ` The weight-gradient sums are multiplied by √(${setup.wantedMicroBatches}/${setup.microBatches}), taking the missing micro-batches as independent.`
+          : ""),
     );
   }
   if (shrunk) list.push("The network was shrunk for speed; see the list of changes. Predictions compared with it are made for the shrunk network.");

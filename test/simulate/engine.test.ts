@@ -5,7 +5,7 @@ import { FORMATS, roundTo, type FormatName } from "../../src/formats/index.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { parseSpec, type NetworkSpec } from "../../src/spec/index.js";
-import { runSimulation, learningRate } from "../../src/simulate/engine.js";
+import { runSimulation, learningRate, missingScale } from "../../src/simulate/engine.js";
 import { shrinkSpec } from "../../src/simulate/shrink.js";
 import { measureTensor } from "../../src/simulate/stats.js";
 import { SimulationTooLarge } from "../../src/simulate/types.js";
@@ -166,10 +166,46 @@ describe("simulation engine", () => {
     const s = spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  accumulation-steps: 2"));
     const r = runSimulation(s, { microBatches: 2 });
     expect(r.microBatches).toEqual({ run: 2, wanted: 4 });
-    expect(r.assumptions.join(" ")).toContain("√(4/2)");
+    expect(r.assumptions.join(" ")).toContain("scaled to the size of the sum of all 4");
     expect(r.assumptions.join(" ")).toContain("(2 accumulation steps × 2 workers)");
     const one = runSimulation(spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  accumulation-steps: 1")), { microBatches: 1 });
     expect(one.assumptions.join(" ")).toContain("(1 accumulation step × 2 workers)");
+    expect(one.assumptions.join(" ")).toContain("√(2/1)");
+  });
+
+  it("sizes the sum of the micro-batches not run by the mean and the spread of those run (E‖S_N‖² = N²‖μ‖² + N·tr σ²)", () => {
+    // gradients g_i = μ + e_i with ‖μ‖² = 4 and noise of trace 1 per micro-batch, drawn; the sum of N = 64 has expected
+    // squared norm 64²·4 + 64·1 (the mean and variance of a sum; common practice)
+    const random = createRandom(7);
+    const n = 4096;
+    const mu = Float64Array.from({ length: n }, () => 2 / Math.sqrt(n));
+    const run = 8;
+    const sum = new Float64Array(n);
+    let squares = 0;
+    for (let m = 0; m < run; m++) {
+      const g = mu.map((x) => x + random.normal() / Math.sqrt(n));
+      for (let i = 0; i < n; i++) sum[i] = sum[i]! + g[i]!;
+      squares += g.reduce((a, x) => a + x * x, 0);
+    }
+    const norm = sum.reduce((a, x) => a + x * x, 0);
+    const k = missingScale(sum, squares, run, 64);
+    const expected = 64 * 64 * 4 + 64 * 1;
+    expect(Math.abs(Math.log2((k * k * norm) / expected))).toBeLessThan(0.05);
+    // the √ rule (independent micro-batches) would be 8× too small here, 3 binades
+    expect(Math.log2(expected / ((64 / run) * norm))).toBeGreaterThan(2.5);
+    // pure noise: the sum grows as √N
+    const noiseOnly = new Float64Array(n);
+    let noiseSquares = 0;
+    for (let m = 0; m < run; m++) {
+      const g = Float64Array.from({ length: n }, () => random.normal() / Math.sqrt(n));
+      for (let i = 0; i < n; i++) noiseOnly[i] = noiseOnly[i]! + g[i]!;
+      noiseSquares += g.reduce((a, x) => a + x * x, 0);
+    }
+    const kn = missingScale(noiseOnly, noiseSquares, run, 64);
+    const noiseNorm = noiseOnly.reduce((a, x) => a + x * x, 0);
+    expect(Math.abs(Math.log2((kn * kn * noiseNorm) / 64))).toBeLessThan(0.1);
+    expect(missingScale(sum, squares, 1, 64)).toBe(8);
+    expect(missingScale(sum, squares, 64, 64)).toBe(1);
   });
 
   it("names the accumulate format once, and the plan's tf32 beside the binary32 it is simulated in", () => {
