@@ -2066,6 +2066,24 @@ function anyAboveLevel(s: number, p: number): number {
 const LEVEL_MIN_SPREAD = 0.5;
 const LEVEL_TABLES = new Map<number, (Window | undefined)[]>();
 const N_WEIGHTS = new Float64Array(TABLE_POINTS);
+/**
+ * Whether {@link lawMixtureCrossing} reads both Gaussian levels of a profile (the any-above level and the level below)
+ * off their tables: a Gaussian law (or half-Gaussian, or bounded: the bound is applied after), at least GRID_COUNT
+ * nonzero elements, a spread within both tables. Then the levels cost a few table reads, less than a memo of them.
+ */
+export function gaussianLevelsTabled(profile: MagnitudeProfile): boolean {
+  const shape = profile.shape;
+  const spread = profile.log2Spread;
+  return (
+    (shape === "gaussian" || shape === "half-gaussian" || shape === "bounded") &&
+    nonzeroElements(profile) >= GRID_COUNT &&
+    spread >= LEVEL_MIN_SPREAD &&
+    spread >= LOW_MIN_SPREAD &&
+    spread <= TABLE_MAX_SPREAD &&
+    spread <= LOW_MAX_SPREAD
+  );
+}
+
 function levelTableValue(spread: number, p: number): number {
   const share = integrandShare;
   const count = integrandCount;

@@ -10,6 +10,7 @@ import {
   nonzeroElements,
   gaussianBelowOverDraws,
   gaussianEnergyBelowOverDraws,
+  gaussianLevelsTabled,
   gaussianRowsOverDraws,
   lawMixtureCrossing,
   lawOverDraws,
@@ -245,6 +246,19 @@ export function profileStatistics(
       max: profile.rms * 2 ** (spread * normalUpperQuantile(levels.maxQuantile)),
       low: profile.rms * 2 ** (-spread * normalUpperQuantile(levels.lowQuantile)),
     };
+  }
+  if (gaussianLevelsTabled(profile) && levels.maxQuantile > 0 && levels.maxQuantile < 1 && levels.lowQuantile > 0 && levels.lowQuantile < 1) {
+    // read off the level tables afresh: a fresh 1,000-layer check missed the memo below for half its 7,500 look-ups,
+    // and each look-up reads a 3 MB table; the same values bit for bit (the tables' points never depend on what was
+    // computed before)
+    const bound = profile.bound;
+    let max = profile.rms * 2 ** lawMixtureCrossing(profile, "any-above", levels.maxQuantile);
+    let low = profile.rms * 2 ** lawMixtureCrossing(profile, "below", levels.lowQuantile);
+    if (bound !== undefined && bound > 0) {
+      max = Math.min(max, bound);
+      low = Math.min(low, bound);
+    }
+    return { rms: profile.rms, max, low };
   }
   const n = nonzeroElements(profile);
   // the largest element at the median scale passes 2^v·rms with probability anyOf(P(|x| ≥ 2^v·rms), n); a bound
