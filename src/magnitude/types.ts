@@ -151,6 +151,8 @@ export interface HazardSite {
   end?: { input: MagnitudeProfile; output?: MagnitudeProfile };
   /** the tensor the operation acts on, when its layer has several (a gradient-sum site's weight or bias gradient) */
   tensor?: string;
+  /** a loss-value site under mean reduction: the terms the mean sums before it divides (its rounding is the sum's) */
+  averaged?: number;
 }
 
 /** The magnitude engine's output for one spec and plan. */

@@ -358,7 +358,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       );
     case LOSS_SUM_ERROR: {
       const said =
-        `The loss sums ${site.terms} terms (one per sample and position) in ${format}, the accumulate format: relative rounding error at least ` +
+        `${site.terms > 1 ? `The loss sums its ${site.terms} terms` : `The loss averages ${draft.extra} terms, summed`} in ${format}, the accumulate format: relative rounding error at least ` +
         `√n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
       return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`).`;
     }
@@ -628,9 +628,10 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
   // A summed loss is a reduction of `terms` per-example losses in the accumulate format: its rounding error judged as
   // an accumulation's (sumRoundingError, √n·u). Its terms share one sign, so a sequential sum in a narrow format does
   // worse once it passes about a term/u (each term then below half an ulp): √n·u is the least it carries.
-  if (site.terms > 1) {
-    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", sumRoundingError(site.terms, context.accumulate.unitRoundoff), null,
-      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, 0, false);
+  const summed = site.terms > 1 ? site.terms : (site.averaged ?? 1);
+  if (summed > 1) {
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", sumRoundingError(summed, context.accumulate.unitRoundoff), null,
+      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, summed, false);
   }
 }
 

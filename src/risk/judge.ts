@@ -810,6 +810,15 @@ export function trainingSites(
     if (perTerm !== undefined) {
       const positions = spec.input.kind === "image" ? 1 : spec.input.positions;
       const terms = training.loss.reduction === "sum" ? training.batch * positions : 1;
+      // a mean sums its terms before dividing: one per sample and position for cross-entropy, one per output element
+      // (the network's output, the tensor before the loss) for squared error
+      const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
+      const averaged =
+        training.loss.reduction !== "mean"
+          ? undefined
+          : training.loss.kind === "cross-entropy" || lossAt < 1
+            ? training.batch * positions
+            : (prediction.tensors[lossAt - 1] as TensorPrediction).start.elements;
       sites.push({
         kind: "loss-value",
         layer: "loss",
@@ -824,6 +833,7 @@ export function trainingSites(
         output: undefined,
         end: undefined,
         tensor: undefined,
+        ...(averaged !== undefined && averaged > 1 ? { averaged } : {}),
       });
     }
   }

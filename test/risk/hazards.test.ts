@@ -1,10 +1,11 @@
 import { describe, expect, it } from "vitest";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, rangeLimits, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
+import { DEFAULT_THRESHOLDS, evaluateHazard, hazardVerdict, judgePrediction, rangeLimits, tensorFormatRisk, tensorStatistics, type HazardContext } from "../../src/risk/index.js";
 import { getFormat } from "../../src/formats/index.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING } from "./limits.js";
 import { context, profile, site } from "./hazard-sites.js";
 import { buildGraph } from "../../src/graph/index.js";
+import { parseSpec } from "../../src/spec/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { dense, features, he, makeSpec } from "../magnitude/build-spec.js";
 
@@ -78,8 +79,28 @@ describe("a summed loss's rounding error", () => {
     expect(wide.evaluations.find((e) => e.measure === "relative-error")?.value).toBeCloseTo(64 * 2 ** -24, 15);
     expect(wide.findings.some((f) => f.kind === "accumulation-error")).toBe(false);
   });
-  it("a loss of one term (mean reduction's site) adds no rounding evaluation", () => {
+  it("a loss of one term adds no rounding evaluation; a mean of 4096 terms is their sum divided: √4096·2^-8 = 0.25 fails in bfloat16", () => {
     expect(evaluateHazard(loss(1), context()).evaluations.some((e) => e.measure === "relative-error")).toBe(false);
+    const mean = evaluateHazard({ ...loss(1), averaged: 4096 }, context({ activations: BFLOAT16_FTZ, accumulate: BFLOAT16_FTZ }));
+    const error = mean.evaluations.find((e) => e.measure === "relative-error");
+    expect(error?.value).toBe(0.25);
+    expect(error?.verdict).toBe("fails");
+    expect(error?.sentence).toContain("The loss averages 4096 terms, summed in bfloat16");
+  });
+
+  it("a spec's mean reduction sums one term per sample and position (cross-entropy) or per output element (squared error)", () => {
+    // invented: a 64-sample batch of 16 features into 10 outputs
+    const averagedOf = (loss: string) => {
+      const text = `name: mean-terms\ninput: { features: 16 }\ntraining: { batch: 64, loss: ${loss} }\nlayers:\n  - { type: dense, width: 10 }\n`;
+      const parsed = parseSpec(text, "mean-terms.yaml");
+      if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+      const graph = buildGraph(parsed.spec);
+      if (!graph.ok) throw new Error("does not build");
+      const result = judgePrediction(parsed.spec, predict(graph.graph, parsed.spec));
+      return result.hazards.find((h) => h.kind === "loss-value")?.evaluations.find((e) => e.measure === "relative-error")?.sentence;
+    };
+    expect(averagedOf("{ kind: cross-entropy, classes: 10 }")).toContain("averages 64 terms");
+    expect(averagedOf("{ kind: mean-squared-error }")).toContain("averages 640 terms");
   });
 });
 
