@@ -320,6 +320,11 @@ function verdictWord(verdict: Verdict): string {
   return verdict === "fits" ? "fits" : verdict === "at-risk" ? "at risk" : "fails";
 }
 
+// what a softmax site's sentence names: its layer, or the cross-entropy's own softmax
+function softmaxOf(site: HazardSite): string {
+  return site.layer === "loss" ? "the cross-entropy loss" : site.layer;
+}
+
 // The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
 // of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
 // and one after the weights have grown call for different remedies)
@@ -331,10 +336,10 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
   switch (draft.wording) {
     case SOFTMAX_GUARDED:
       return value > 0
-        ? `The softmax of ${site.layer} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per key, ` +
+        ? `The softmax of ${softmaxOf(site)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per key, ` +
             `each at most 1), can pass what ${format} holds (${limitNumber(draft.criticalLevel as number)})` +
             `${draft.notWidened ? " if the sum is kept in the activation format" : ""} (${verdictWord(verdict)}).`
-        : `The softmax of ${site.layer} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
+        : `The softmax of ${softmaxOf(site)} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
             `${site.terms}) stays within ${format}${draft.extra === 1 ? " with its scale factor" : ""}.`;
     case SOFTMAX_EXP:
       return (

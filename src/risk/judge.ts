@@ -838,6 +838,27 @@ export function trainingSites(
     }
   }
 
+  // the cross-entropy's own softmax: its log-sum-exp subtracts the row maximum (common practice; src/ops/loss/kernel.ts),
+  // so only its denominator, up to one term per class, can pass a format's range, as an attention softmax's can
+  if (training.loss.kind === "cross-entropy" && !prediction.hazards.some((h) => h.kind === "softmax-exp" && h.layer === "loss")) {
+    const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
+    const logits = lossAt >= 1 ? (prediction.tensors[lossAt - 1] as TensorPrediction).start : undefined;
+    if (logits !== undefined) {
+      sites.push({
+        kind: "softmax-exp",
+        layer: "loss",
+        input: logits,
+        terms: training.loss.classes,
+        guarded: true,
+        constant: undefined,
+        detail: `the cross-entropy's softmax over ${training.loss.classes} classes (row maximum subtracted)`,
+        output: undefined,
+        end: undefined,
+        tensor: undefined,
+      });
+    }
+  }
+
   const contributions = training.workers * training.accumulationSteps;
   if (!hasSite(prediction.hazards, "gradient-sum") && contributions > 1) {
     const pick = byRms(weightGradients, training.workerGradients === "sum" ? "largest" : "smallest");

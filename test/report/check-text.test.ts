@@ -297,7 +297,7 @@ describe("the count of a section with nothing at risk", () => {
   const text = [
     "name: parcel-sorter",
     "input: { features: 64 }",
-    "training: { batch: 32, loss: { kind: cross-entropy, classes: 12 }, optimizer: { kind: momentum, learning-rate: 0.05 } }",
+    "training: { batch: 32, loss: { kind: mean-squared-error }, optimizer: { kind: momentum, learning-rate: 0.05 } }",
     "precision: { activations: e4m3, weights: e4m3, gradients: e5m2 }",
     "layers:",
     "  - { type: dense, width: 12, init: he-normal }",

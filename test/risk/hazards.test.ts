@@ -104,6 +104,26 @@ describe("a summed loss's rounding error", () => {
   });
 });
 
+describe("the cross-entropy's own softmax", () => {
+  // invented: a 120,000-class catalogue head; the log-sum-exp subtracts the row maximum (common practice), so its
+  // denominator of up to one term per class passes binary16's 65520 (IEEE 754-2019 Table 3.5) only when summed there
+  const judged = (accumulate: string) => {
+    const text = `name: catalogue-head\ninput: { features: 16 }\ntraining: { batch: 8, loss: { kind: cross-entropy, classes: 120000 } }\nprecision: { activations: binary16, accumulate: ${accumulate} }\nlayers:\n  - { type: dense, width: 120000 }\n`;
+    const parsed = parseSpec(text, "catalogue-head.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const graph = buildGraph(parsed.spec);
+    if (!graph.ok) throw new Error("does not build");
+    return judgePrediction(parsed.spec, predict(graph.graph, parsed.spec)).hazards.find((h) => h.kind === "softmax-exp" && h.layer === "loss");
+  };
+  it("fails with a binary16 accumulator, is at most at risk kept in binary16 activations beside a binary32 one", () => {
+    const narrow = judged("binary16");
+    expect(narrow?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", "fails"]]);
+    expect(narrow?.evaluations[0]?.sentence).toContain("The softmax of the cross-entropy loss subtracts the row maximum, but its denominator, up to 120000");
+    const wide = judged("binary32");
+    expect(wide?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", "at-risk"]]);
+  });
+});
+
 describe("norm sums of squares", () => {
   // Σx² over N features overflows binary16 once rms > √(65504/N): 4.0 at N = 4096 (DESIGN.md §5 item 7)
   const norm = (rms: number): HazardSite =>
