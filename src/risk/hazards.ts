@@ -393,8 +393,8 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
     }
     case GRADIENT_SUM_OVERFLOW:
       return (
-        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${gradientOf(site)} (rms ${plainNumber(draft.extra)} after the loss ` +
-        `scale) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
+        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${gradientOf(site)} (rms ${plainNumber(draft.extra)}${context.lossScale === 1 ? "" : " after the loss scale"}) ` +
+        `overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
       );
     case GRADIENT_SUM_ERROR: {
       const terms = Math.max(1, site.terms);
