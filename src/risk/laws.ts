@@ -142,6 +142,29 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
+/**
+ * The element shapes lawOverDraws tells apart, as numbers, for the draw and level tables (and the subnormal noise's
+ * memo); -1 for one it does not know (the tables do not memoise it). A switch, not a search of a list per look-up.
+ */
+export function shapeCode(shape: MagnitudeProfile["shape"]): number {
+  switch (shape) {
+    case "gaussian":
+      return 0;
+    case "half-gaussian":
+      return 1;
+    case "uniform":
+      return 2;
+    case "constant":
+      return 3;
+    case "bounded":
+      return 4;
+    case "log-normal":
+      return 5;
+    default:
+      return -1;
+  }
+}
+
 /** Number of nonzero elements of one step. */
 export function nonzeroElements(profile: MagnitudeProfile): number {
   return Math.max(0, profile.elements * (1 - profile.zeroFraction));

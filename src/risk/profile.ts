@@ -5,6 +5,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile, hashSlot, hashWords } from "./_math.js";
 import {
+  shapeCode,
   isConstantLike,
   isEmpty,
   nonzeroElements,
@@ -141,26 +142,6 @@ const DRAW_TAGS = new Int32Array(DRAW_SLOTS);
 const DRAW_PROBE = new Float64Array(DRAW_KEY);
 const DRAW_PROBE_WORDS = new Int32Array(DRAW_PROBE.buffer);
 
-// the element shapes lawOverDraws tells apart, as numbers, for the draw and level tables; -1 for one it does not
-// know (the draw table does not memoise it)
-function shapeCode(shape: MagnitudeProfile["shape"]): number {
-  switch (shape) {
-    case "gaussian":
-      return 0;
-    case "half-gaussian":
-      return 1;
-    case "uniform":
-      return 2;
-    case "constant":
-      return 3;
-    case "bounded":
-      return 4;
-    case "log-normal":
-      return 5;
-    default:
-      return -1;
-  }
-}
 
 
 // lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table

@@ -6,7 +6,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
-import { elementLaw, isConstantLike, isEmpty, ruleOverDraws } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
 
@@ -84,29 +84,9 @@ const KEYS = new Float64Array(SLOTS * KEY).fill(NaN);
 const VALUES = new Float64Array(SLOTS);
 const PROBE = new Float64Array(KEY);
 const PROBE_WORDS = new Int32Array(PROBE.buffer);
-// the shape's place in ["gaussian", "half-gaussian", "uniform", "constant", "bounded", "log-normal"] (-1 for another), by
-// comparison rather than a search of a list per look-up
-function shapeIndex(shape: MagnitudeProfile["shape"]): number {
-  switch (shape) {
-    case "gaussian":
-      return 0;
-    case "half-gaussian":
-      return 1;
-    case "uniform":
-      return 2;
-    case "constant":
-      return 3;
-    case "bounded":
-      return 4;
-    case "log-normal":
-      return 5;
-    default:
-      return -1;
-  }
-}
 
 function memoised(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
-  PROBE[0] = shapeIndex(profile.shape);
+  PROBE[0] = shapeCode(profile.shape);
   PROBE[1] = profile.rms;
   PROBE[2] = profile.log2Spread;
   PROBE[3] = profile.bound ?? -1;
