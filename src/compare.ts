@@ -6,7 +6,7 @@ import { check, type CheckAnswer, type MeasuredNetwork } from "./check.js";
 import { bytesPerElementText, getFormat, MX_BLOCK } from "./formats/index.js";
 import type { Measurements } from "./measure/index.js";
 import { VERDICT_RANK, type AppliedLossScale, type CheckResult, type Verdict } from "./risk/index.js";
-import { gradientSumFormat } from "./spec/normalize.js";
+import { gradientContributions, gradientSumFormat } from "./spec/normalize.js";
 import type { NetworkSpec, PrecisionPlan } from "./spec/types.js";
 import { OPTIMIZER_THRESHOLDS, type OptimizerCheck } from "./scale/optimizer.js";
 import type { LossScaleAnswer } from "./scale/recommend.js";
@@ -132,7 +132,7 @@ function elementBytes(plan: PrecisionPlan, name: string): { bytes: number; scale
 }
 
 function separateSumBuffer(spec: NetworkSpec, plan: PrecisionPlan): boolean {
-  return gradientSumFormat(plan) !== plan.gradients && (spec.training.workers > 1 || spec.training.accumulationSteps > 1);
+  return gradientSumFormat(plan) !== plan.gradients && gradientContributions(spec.training) > 1;
 }
 
 export function planCost(spec: NetworkSpec, plan: PrecisionPlan, result: CheckResult): PlanCost {

@@ -10,6 +10,7 @@ import {
   shrinkSpec,
   simulate,
   SimulationTooLarge,
+  nonzeroShare,
   zeroAfterStorage,
   type Comparison,
   type ComparisonRow,
@@ -462,8 +463,7 @@ function describe(r: ComparisonRow): string {
   const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
   const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
   const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)`;
-  const nonzero = (share: number, zeros: number) => (zeros < 1 ? share / (1 - zeros) : 0);
-  const [flushedMeasured, flushedPredicted] = [nonzero(m.counts.flushed, m.zeroFraction), nonzero(r.predictedFlushed, r.predictedZeroFraction)];
+  const [flushedMeasured, flushedPredicted] = [nonzeroShare(m.counts.flushed, m.zeroFraction), nonzeroShare(r.predictedFlushed, r.predictedZeroFraction)];
   const flushedText = !Number.isNaN(flushedPredicted) && flushedMeasured !== flushedPredicted
     ? `; nonzero elements flushed ${share(flushedMeasured)} measured, ${share(flushedPredicted)} predicted`
     : "";

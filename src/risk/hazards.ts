@@ -325,6 +325,11 @@ function softmaxOf(site: HazardSite): string {
   return site.layer === "loss" ? "the cross-entropy loss" : site.layer;
 }
 
+// what one term of a softmax's denominator stands for: a key of an attention, a class of the cross-entropy
+function softmaxTerm(site: HazardSite): string {
+  return site.layer === "loss" ? "class" : "key";
+}
+
 // The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
 // of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
 // and one after the weights have grown call for different remedies)
@@ -336,7 +341,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
   switch (draft.wording) {
     case SOFTMAX_GUARDED:
       return value > 0
-        ? `The softmax of ${softmaxOf(site)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per key, ` +
+        ? `The softmax of ${softmaxOf(site)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per ${softmaxTerm(site)}, ` +
             `each at most 1), can pass what ${format} holds (${limitNumber(draft.criticalLevel as number)})` +
             `${draft.notWidened ? " if the sum is kept in the activation format" : ""} (${verdictWord(verdict)}).`
         : `The softmax of ${softmaxOf(site)} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +

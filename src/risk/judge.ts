@@ -15,7 +15,7 @@ import type {
   TensorPrediction,
   TensorRole,
 } from "../magnitude/types.js";
-import { gradientSumFormat } from "../spec/normalize.js";
+import { gradientContributions, gradientSumFormat } from "../spec/normalize.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
@@ -343,7 +343,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
     hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
   }
   const formatChecks: FormatCheck[] = [];
-  const sums = spec.training.workers > 1 || spec.training.accumulationSteps > 1;
+  const sums = gradientContributions(spec.training) > 1;
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const formatCheck = judgeFormat(settings[i] as FormatSetting, plan, hazards, scales[i] === lossScale ? undefined : scales[i], sums);
@@ -799,6 +799,8 @@ export function trainingSites(
   const training = spec.training;
   const sites: HazardSite[] = [];
 
+  // the loss tensor's place: the tensor before it is the network's output (the logits under cross-entropy)
+  const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
   if (!hasSite(prediction.hazards, "loss-value")) {
     const lossTensor = lossTensorOf(prediction.tensors);
     const perTerm =
@@ -812,7 +814,6 @@ export function trainingSites(
       const terms = training.loss.reduction === "sum" ? training.batch * positions : 1;
       // a mean sums its terms before dividing: one per sample and position for cross-entropy, one per output element
       // (the network's output, the tensor before the loss) for squared error
-      const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
       const averaged =
         training.loss.reduction !== "mean"
           ? undefined
@@ -841,7 +842,6 @@ export function trainingSites(
   // the cross-entropy's own softmax: its log-sum-exp subtracts the row maximum (common practice; src/ops/loss/kernel.ts),
   // so only its denominator, up to one term per class, can pass a format's range, as an attention softmax's can
   if (training.loss.kind === "cross-entropy" && !prediction.hazards.some((h) => h.kind === "softmax-exp" && h.layer === "loss")) {
-    const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
     const logits = lossAt >= 1 ? (prediction.tensors[lossAt - 1] as TensorPrediction).start : undefined;
     if (logits !== undefined) {
       sites.push({
@@ -859,7 +859,7 @@ export function trainingSites(
     }
   }
 
-  const contributions = training.workers * training.accumulationSteps;
+  const contributions = gradientContributions(training);
   if (!hasSite(prediction.hazards, "gradient-sum") && contributions > 1) {
     const pick = byRms(weightGradients, training.workerGradients === "sum" ? "largest" : "smallest");
     if (pick !== undefined) {

@@ -136,8 +136,8 @@ export function predictedOverflowFraction(profile: MagnitudeProfile, format: For
   return (1 - profile.zeroFraction) * (1 - fractionBelow(profile, format.overflowThreshold));
 }
 
-// a share of all elements as a share of the nonzero ones (exact zeros before storage set apart)
-function nonzeroShare(share: number, zeroFraction: number): number {
+/** A share of all elements as a share of the nonzero ones (exact zeros before storage set apart). */
+export function nonzeroShare(share: number, zeroFraction: number): number {
   return zeroFraction < 1 ? share / (1 - zeroFraction) : 0;
 }
 

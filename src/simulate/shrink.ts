@@ -76,11 +76,12 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   // pools whose window covers their whole input image (a global pool) in every use: they keep covering it when the
   // image shrinks, as their window shrinks with it; a local pool keeps its window
   const globalPools = new Set<LayerSpec>();
+  // the full-size network, built once: the global pools here, the fan-ins of the initialisations below
+  const before = buildGraph(spec);
   if (f.image > 1) {
-    const full = buildGraph(spec);
-    if (full.ok) {
+    if (before.ok) {
       const local = new Set<LayerSpec>();
-      for (const layer of forwardOrder(full.graph)) {
+      for (const layer of forwardOrder(before.graph)) {
         const s = layer.spec;
         if ((s.family !== "average-pool" && s.family !== "max-pool") || layer.input.layout !== "image") continue;
         if (s.size >= layer.input.height && s.size >= layer.input.width) globalPools.add(s);
@@ -121,11 +122,8 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
       case "average-pool":
       case "max-pool":
         // a global pool takes a window of 1 for now: its size is its input's once the shrunk network is built
-        copy = { ...layer };
-        if (globalPools.has(layer)) {
-          copy = { ...layer, size: 1, stride: 1 };
-          globalCopies.set(copy, layer.size);
-        }
+        copy = globalPools.has(layer) ? { ...layer, size: 1, stride: 1 } : { ...layer };
+        if (copy.size !== layer.size) globalCopies.set(copy, layer.size);
         break;
       default:
         copy = { ...layer };
@@ -168,7 +166,6 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   }
 
   // keep fan_in·var_w for fixed-scale initialisations (normal std, uniform limit): multiply by √(fan-in ratio)
-  const before = buildGraph(spec);
   const after = buildGraph(result);
   let rescaled = 0;
   if (before.ok && after.ok) {

@@ -14,4 +14,4 @@ export {
   MAX_EXPANDED_LAYERS,
   type LayerType,
 } from "./schema.js";
-export { DEFAULT_INIT, DEFAULT_EMBEDDING_INIT, DEFAULT_OPTIMIZER, DEFAULT_PLAN_NAME, gradientSumFormat } from "./normalize.js";
+export { DEFAULT_INIT, DEFAULT_EMBEDDING_INIT, DEFAULT_OPTIMIZER, DEFAULT_PLAN_NAME, gradientContributions, gradientSumFormat } from "./normalize.js";

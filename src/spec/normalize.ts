@@ -216,6 +216,11 @@ const STORAGE_BITS: Record<FormatName, number> = {
   e4m3: 8,
 };
 
+/** The gradient contributions summed per update: workers × accumulation steps (1: nothing is summed). */
+export function gradientContributions(training: Pick<TrainingSpec, "workers" | "accumulationSteps">): number {
+  return training.workers * training.accumulationSteps;
+}
+
 /** The format a plan sums gradient contributions in (workers, accumulation steps): its `gradientSums`, else its gradients'. */
 export function gradientSumFormat(plan: Pick<PrecisionPlan, "gradients" | "gradientSums">): FormatName {
   return plan.gradientSums ?? plan.gradients;
