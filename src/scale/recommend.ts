@@ -950,7 +950,9 @@ function rankRemedies(
 ): ScaleRemedy[] {
   const remedies: ScaleRemedy[] = [];
   const gradientBytes = getFormat(plan.gradients).bytes;
-  // 1. hold the tensors that set the edges in binary32, greedily, one edge setter at a time (at most 6)
+  // 1. hold the tensors that set the edges in binary32, greedily, one edge setter at a time (at most 6); where one
+  // tensor sets both edges the two lists can coincide: a held set is told once
+  const told: ReadonlySet<string>[] = [];
   for (const edge of ["lower", "upper"] as const) {
     const held: string[] = [];
     let current = window;
@@ -961,6 +963,9 @@ function rankRemedies(
       current = windowWithout(new Set(held));
     }
     if (held.length === 0) continue;
+    const set = new Set(held);
+    if (told.some((t) => t.size === set.size && held.every((id) => t.has(id)))) continue;
+    told.push(set);
     const extra = held.reduce((sum, id) => sum + (byId.get(id)?.start.elements ?? 0) * (4 - gradientBytes), 0);
     remedies.push({
       kind: "hold-in-binary32",
