@@ -116,7 +116,17 @@ class Phase {
   readonly tensors: PredictedTensor[];
   /** tensors emitted so far by the end pass */
   private emitted = 0;
-  readonly hazards: HazardSite[] = [];
+  /** the start pass's sites; the end pass completes their `end` in the same order */
+  readonly hazards: HazardSite[];
+  /** sites completed so far by the end pass */
+  private sited = 0;
+  /** each layer's batch-first output shape by layer index (start pass): its activation and its gradient share one array */
+  private readonly shapes: (number[] | undefined)[] = [];
+  /**
+   * the weights' profiles made so far, by element count: layers of one width and initialisation give equal numbers, and
+   * one profile serves them all (a profile is a function of its inputs; nothing writes to a prediction's profiles)
+   */
+  private readonly weightProfiles = new Map<number, MagnitudeProfile[]>();
   /** each layer's stash by layer index */
   readonly stash: unknown[] = [];
   readonly ctx: OpContext;
@@ -133,8 +143,10 @@ class Phase {
     readonly lossScale: number,
     startTensors?: PredictedTensor[],
     readonly source: LedgerSource | null = null,
+    startHazards?: HazardSite[],
   ) {
     this.tensors = startTensors ?? [];
+    this.hazards = startHazards ?? [];
     // a pass with a source leaves the ledger to it; a pass without one (the source's own) links the nodes
     this.ledger = build && source === null;
     const growth = phase === "end" ? spec.training.horizon.weightGrowth : 1;
@@ -230,23 +242,45 @@ class Phase {
     }
   }
 
+  /**
+   * The start pass adds its site; the end pass (same operations, same order) gives the start site at the same place
+   * its `end`, with no site of its own.
+   */
+  site(site: HazardSite): void {
+    this.hazards.push(site);
+  }
+
+  /** The end pass's profiles of the next start site (see {@link site}). */
+  siteEnd(input: MagnitudeProfile, output: MagnitudeProfile | undefined): void {
+    const site = this.hazards[this.sited++];
+    if (site !== undefined) site.end = { input, output };
+  }
+
+  /** A layer's batch-first output shape, one array for its activation and its gradient (none in the end pass). */
+  outputShape(layer: GraphLayer): number[] {
+    if (!this.build) return NO_SHAPE;
+    return (this.shapes[layer.index] ??= batchShape(this.graph.batch, layer.output));
+  }
+
   /** `output`, `profile`, `elements`: a tensor's moments and the profile already made of them, for a site that shares them. */
   hazard(layer: GraphLayer, h: OpHazard, output?: Signal, profile?: MagnitudeProfile, elements?: number): void {
     const outputElements = h.outputElements ?? h.inputElements;
+    const input = profileOf(h.input, h.inputElements);
+    const out = h.output === undefined ? undefined : h.output === output && outputElements === elements ? profile : profileOf(h.output, outputElements);
+    if (this.phase === "end") return this.siteEnd(input, out);
     // every site is created whole, in one key order (judge.ts's trainingSites too), so its readers see one layout
-    const site: HazardSite = {
+    this.site({
       kind: h.kind,
       layer: layer.name,
-      input: profileOf(h.input, h.inputElements),
+      input,
       terms: h.terms,
       guarded: h.guarded,
       constant: undefined,
       detail: this.build ? textOf(h.detail) : "",
-      output: h.output === undefined ? undefined : h.output === output && outputElements === elements ? profile : profileOf(h.output, outputElements),
+      output: out,
       end: undefined,
       tensor: undefined,
-    };
-    this.hazards.push(site);
+    });
   }
 
   weightRecords(layer: GraphLayer, prefix: string): void {
@@ -265,7 +299,7 @@ class Phase {
       q = value * value;
       zero = value === 0;
     }
-    const profile = plainProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", 0, w.elements);
+    const profile = this.weightProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", w.elements);
     let node: LedgerNode | null = null;
     let id = "";
     if (this.build) {
@@ -273,6 +307,22 @@ class Phase {
       if (this.ledger && profile.rms > 0) node = weightNode(layer.name, w, variance, profile.rms);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight", "weights", w.shape, profile, node);
+  }
+
+  /** A weight's profile: plainProfile's, or the same one made earlier in this pass from the same numbers. */
+  private weightProfile(q: number, zeroFraction: number, shape: "constant" | "uniform" | "gaussian", elements: number): MagnitudeProfile {
+    const made = this.weightProfiles.get(elements);
+    if (made !== undefined) {
+      for (let i = 0; i < made.length; i++) {
+        const p = made[i] as MagnitudeProfile;
+        // meanSquare, zeroFraction and shape are the inputs as given (q ≥ 0, a zero share of 0 or 1)
+        if (p.meanSquare === q && p.zeroFraction === zeroFraction && p.shape === shape) return p;
+      }
+    }
+    const profile = plainProfile(q, zeroFraction, shape, 0, elements);
+    if (made === undefined) this.weightProfiles.set(elements, [profile]);
+    else if (made.length < 8) made.push(profile);
+    return profile;
   }
 
   forward(layers: readonly GraphLayer[], input: Signal, node: LedgerNode | null): { output: Signal; node: LedgerNode | null; resets: boolean } {
@@ -323,7 +373,7 @@ class Phase {
         layer.family,
         result.role,
         "activations",
-        this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
+        this.outputShape(layer),
         profile,
         current,
       );
@@ -360,7 +410,7 @@ class Phase {
           layer.family,
           "activation-gradient",
           "gradients",
-          this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE,
+          this.outputShape(layer),
           profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
           current,
         );
@@ -459,19 +509,21 @@ class Phase {
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
-    const site: HazardSite = {
+    const input = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+    const output = plainProfile(summedQ, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+    if (this.phase === "end") return this.siteEnd(input, output);
+    this.site({
       kind: "gradient-sum",
       layer: layer.name,
-      input: plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements),
+      input,
       terms,
       guarded: false,
       constant: undefined,
       detail: !this.build ? "" : id + this.sumDetail(),
-      output: plainProfile(summedQ, wg.zeroFraction, "gaussian", wg.logVar, weight.elements),
+      output,
       end: undefined,
       tensor: this.build ? id : undefined,
-    };
-    this.hazards.push(site);
+    });
   }
 }
 
@@ -539,10 +591,10 @@ function runPhase(
   phase: "start" | "end",
   build: boolean,
   lossScale: number,
-  startTensors?: PredictedTensor[],
+  start?: PhaseResult,
   source: LedgerSource | null = null,
 ): PhaseResult {
-  const p = new Phase(graph, spec, phase, build, lossScale, startTensors, source);
+  const p = new Phase(graph, spec, phase, build, lossScale, start?.tensors, source, start?.hazards);
   const ledger = p.ledger;
   const input = spec.input;
   let signal: Signal;
@@ -597,18 +649,23 @@ function runPhase(
     ledger ? chain(null, "loss", [{ ratio: lossValueMoments(seed.value, seed.valueLogVar).q, rule: `loss value ${fmt(seed.value)} at the median draw`, source: lossValueSource(training.loss) }], true) : null,
   );
   if (training.loss.reduction === "sum") {
-    p.hazards.push({
-      kind: "loss-value",
-      layer: "loss",
-      input: profileOf(lossValueMoments(seed.termValue, seed.valueLogVar), seed.terms),
-      terms: seed.terms,
-      guarded: false,
-      constant: undefined,
-      detail: `the loss sums ${seed.terms} terms (sum reduction)`,
-      output: profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1),
-      end: undefined,
-      tensor: undefined,
-    });
+    const siteInput = profileOf(lossValueMoments(seed.termValue, seed.valueLogVar), seed.terms);
+    const siteOutput = profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1);
+    if (phase === "end") p.siteEnd(siteInput, siteOutput);
+    else {
+      p.site({
+        kind: "loss-value",
+        layer: "loss",
+        input: siteInput,
+        terms: seed.terms,
+        guarded: false,
+        constant: undefined,
+        detail: `the loss sums ${seed.terms} terms (sum reduction)`,
+        output: siteOutput,
+        end: undefined,
+        tensor: undefined,
+      });
+    }
   }
   const seedNode = chain(null, "loss", [{ ratio: seed.gradient.q, rule: seed.rule, source: seed.source }], ledger);
   p.emit(
@@ -618,7 +675,7 @@ function runPhase(
     last.family,
     "activation-gradient",
     "gradients",
-    batchShape(graph.batch, last.output),
+    p.outputShape(last),
     profileOf(seed.bulk.gradient, seed.bulk.elements),
     ledger ? chain(null, "loss", [{ ratio: seed.bulk.gradient.q, rule: seed.rule, source: seed.source }], true) : null,
   );
@@ -630,7 +687,7 @@ function runPhase(
       last.family,
       "activation-gradient",
       "gradients",
-      batchShape(graph.batch, last.output),
+      p.outputShape(last),
       profileOf(seed.target.gradient, seed.target.elements),
       ledger ? chain(null, "loss", [{ ratio: seed.target.gradient.q, rule: "right-class element (1 − p_y)", source: seed.source }], true) : null,
     );
@@ -772,15 +829,10 @@ export function predict(graph: Graph, spec: NetworkSpec, options: PredictOptions
   // the ledgers are left to a second start pass, run when one is first read: most callers read none, and linked
   // ledger nodes (with their wording) would outlive the call beside every tensor
   const start = runPhase(graph, spec, "start", true, lossScale, undefined, { graph, spec, lossScale, nodes: undefined });
-  const end = runPhase(graph, spec, "end", false, lossScale, start.tensors);
+  // both passes visit the same operations in the same order: the end pass completes the start pass's tensors and sites
+  runPhase(graph, spec, "end", false, lossScale, start);
   const tensors: TensorPrediction[] = start.tensors;
-  // both passes visit the same operations in the same order; the start pass's sites are fresh objects, completed in place
-  const hazards = start.hazards;
-  for (let i = 0; i < hazards.length; i++) {
-    const other = end.hazards[i];
-    if (other !== undefined) (hazards[i] as HazardSite).end = { input: other.input, output: other.output };
-  }
-  return { specName: spec.name, tensors, hazards, assumptions: assumptions(spec) };
+  return { specName: spec.name, tensors, hazards: start.hazards, assumptions: assumptions(spec) };
 }
 
 /** Where the loss value's rule comes from: the loss's definition (the seed's source is that of its gradient). */

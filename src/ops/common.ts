@@ -104,7 +104,11 @@ export function sharedOf(signal: Signal): number {
   return signal.shared ?? signal.mean * signal.mean;
 }
 
-/** A zero-mean Gaussian tensor made by a random linear map of the given output width. */
+/**
+ * A zero-mean Gaussian tensor made by a random linear map of the given output width. The fields the linear rules set
+ * afterwards are keys from the start, undefined (which every reader takes as absent): a key added later moves the
+ * object to a new hidden class and grows an out-of-object store, on every layer of both passes.
+ */
 export function linearOutput(q: number, logVar: number, width: number, shared = 0): Signal {
   return {
     q,
@@ -115,12 +119,29 @@ export function linearOutput(q: number, logVar: number, width: number, shared = 
     logVar: logVar + LINEAR_KAPPA / width,
     fresh: { width, kappa: LINEAR_KAPPA },
     gaussian: true,
+    positionCorrelation: undefined,
+    correlationSquare: undefined,
+    sharedLogVar: undefined,
+    featureCovariance: undefined,
   };
 }
 
-/** A dense Gaussian gradient made by a transposed random linear map into the given width. */
+/** A dense Gaussian gradient made by a transposed random linear map into the given width (its later fields as {@link linearOutput}'s). */
 export function linearGradient(q: number, logVar: number, width: number): Gradient {
-  return { q, zeroFraction: 0, shape: "gaussian", logVar: logVar + LINEAR_KAPPA / width, fresh: { width, kappa: LINEAR_KAPPA } };
+  return {
+    q,
+    zeroFraction: 0,
+    shape: "gaussian",
+    logVar: logVar + LINEAR_KAPPA / width,
+    fresh: { width, kappa: LINEAR_KAPPA },
+    cosineSquare: undefined,
+    coupling: undefined,
+    sharedLogVar: undefined,
+    curvature: undefined,
+    shared: undefined,
+    positionCorrelation: undefined,
+    crossCorrelation: undefined,
+  };
 }
 
 /**

@@ -315,7 +315,22 @@ export function pointwiseForward(
   const positionCorrelation = positionCorrelationOf(input);
   const crossPosition = crossMoments(name, slope, qNonzero, positionCorrelation, m);
   const positionShared = keep * keep * crossPosition.value + (1 - keep * keep) * f0 * f0;
-  const output: Signal = { q, mean, shared: Math.min(shared, q), zeroFraction, shape, logVar, gaussian: name === "identity" ? input.gaussian : false };
+  // the fields set below are keys from the start, undefined where absent (as linearOutput's)
+  const output: Signal = {
+    q,
+    mean,
+    shared: Math.min(shared, q),
+    zeroFraction,
+    shape,
+    logVar,
+    gaussian: name === "identity" ? input.gaussian : false,
+    positionCorrelation: undefined,
+    bound: undefined,
+    fresh: undefined,
+    correlationSquare: undefined,
+    allZero: undefined,
+    featureCovariance: undefined,
+  };
   if (q > 0) output.positionCorrelation = Math.min(positionShared / q, 1);
   const channelShared = input.channelShared;
   if (channelShared !== undefined && input.zeroFraction === 0 && input.q > channelShared && (name === "relu" || name === "leaky-relu")) {
@@ -399,7 +414,22 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   let logVar = output.logVar;
   if (output.fresh !== undefined) logVar = Math.max(logVar + (kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
-  const gradient: Gradient = { q: derivativeSecond * output.q, zeroFraction, shape: "gaussian", logVar };
+  // the fields set below are keys from the start, undefined where absent (as linearGradient's)
+  const gradient: Gradient = {
+    q: derivativeSecond * output.q,
+    zeroFraction,
+    shape: "gaussian",
+    logVar,
+    sharedLogVar: undefined,
+    coupling: undefined,
+    cosineSquare: undefined,
+    shared: undefined,
+    positionCorrelation: undefined,
+    crossCorrelation: undefined,
+    allZero: undefined,
+    reluGated: undefined,
+    curvature: undefined,
+  };
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
   if (output.coupling !== undefined) gradient.coupling = output.coupling;
   // φ' gates two samples' gradients alike where their pre-activations agree: the cosine scales by E[φ'(u)φ'(v)]/E[φ'²]
