@@ -11,7 +11,7 @@ import { riskProfile } from "../risk/tensor.js";
 import { energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
-import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions } from "./window.js";
+import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
 import { anyAboveEnclosure, enclosureApplies, shiftBounds, shiftLevels } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
@@ -149,7 +149,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
 
   const sentences = describe(window, format, windowOptions, requested);
   const remedies =
-    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, dynamic, profiles) : [];
+    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, limits, dynamic, profiles) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
@@ -178,6 +178,7 @@ function sameTensors(tensors: readonly TensorPrediction[], profiles: readonly Gr
 class BoundedCurves implements ScaledTensorCurves {
   readonly id: string;
   readonly edgeGuessesLog2: { overflow: number; flush: number };
+  readonly flushedEnergyGrowth: number | undefined;
   private readonly start: MagnitudeProfile;
   private readonly end: MagnitudeProfile;
   private readonly same: boolean;
@@ -200,6 +201,7 @@ class BoundedCurves implements ScaledTensorCurves {
     this.start = parts.start;
     this.end = parts.end;
     this.same = parts.same;
+    this.flushedEnergyGrowth = growsAtMostEightfold(parts.start) && growsAtMostEightfold(parts.end) ? FLUSH_GROWTH : undefined;
   }
 
   // each profile's upper bound at k: the moment bounds where the law has them (both ends kept), else the segment bound
@@ -276,6 +278,14 @@ class BoundedCurves implements ScaledTensorCurves {
     this.flushUppers(k);
     return Math.max(this.flushStart, this.flushEnd);
   }
+}
+
+// The flushed share of a Gaussian or half-Gaussian law without a cap, at any spread of its scale, grows at most
+// eightfold per binade the threshold doubles (the magnitudes' density does not rise away from 0: src/scale/window.ts
+// flushedEnergyGrowth); twice that covers the integrals' own error (tables within 1.1e-4 relative, src/risk/laws.ts).
+const FLUSH_GROWTH = 9;
+function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
+  return (profile.shape === "gaussian" || profile.shape === "half-gaussian") && (profile.bound === undefined || !(profile.bound > 0));
 }
 
 const PAIR = new Float64Array(2);
@@ -940,11 +950,12 @@ function unscaledWindowSentences(
 
 /** Remedies for an empty window, each with its effect computed, the working ones first and cheapest first. */
 function rankRemedies(
-  windowWithout: (setAside?: ReadonlySet<string>) => ScaleWindow,
+  windowWithout: WindowsOf,
   byId: Map<string, TensorPrediction>,
   window: ScaleWindow,
   options: WindowOptions,
   plan: PrecisionPlan,
+  limits: RangeLimits,
   dynamic: DynamicScaleResult,
   profiles: readonly GradientProfiles[],
 ): ScaleRemedy[] {
@@ -989,8 +1000,12 @@ function rankRemedies(
   if (plan.gradients !== "bfloat16") {
     const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
     const gradients = [...byId.values()];
-    const bfCurves = boundedLossScaleCurves(gradients, bf, sameTensors(gradients, profiles) ? profiles : undefined);
-    const w = lossScaleWindow(bfCurves, options);
+    const same = sameTensors(gradients, profiles);
+    const bfCurves = boundedLossScaleCurves(gradients, bf, same ? profiles : undefined);
+    // the same profiles against bfloat16's flush bound, a power of two apart from the gradient format's: the flushed
+    // shares the first search learnt serve this one, so many binades apart (src/scale/window.ts FlushLike)
+    const shift = same ? flushShift(limits, bf, options) : null;
+    const w = shift === null ? lossScaleWindow(bfCurves, options) : lossScaleWindows(bfCurves, options, { windows: windowWithout, shift })();
     remedies.push({
       kind: "bfloat16-gradients",
       works: !w.empty,
@@ -1004,6 +1019,21 @@ function rankRemedies(
   }
   const order = { "hold-in-binary32": 0, "dynamic-scale": 1, "bfloat16-gradients": 2 } as const;
   return remedies.sort((a, b) => Number(b.works) - Number(a.works) || (a.extraBytes ?? 0) - (b.extraBytes ?? 0) || order[a.kind] - order[b.kind]);
+}
+
+// k' − k where the flush threshold of `to` at k equals `from`'s at k' as a double, for every k of the search (both
+// flush bounds a power of two apart, every product in the range of normal doubles); null otherwise
+function flushShift(from: RangeLimits, to: RangeLimits, options: WindowOptions): number | null {
+  const a = from.flushBound;
+  const b = to.flushBound;
+  if (!(a > 0 && b > 0 && Number.isFinite(a) && Number.isFinite(b))) return null;
+  const shift = Math.round(Math.log2(a / b));
+  if (b * 2 ** shift !== a) return null;
+  // the thresholds b·2^−k, and the powers 2^−(k + shift) the other format's curves take, stay normal doubles: each
+  // product is then exact, and both are one double
+  const { lowestLog2: lo, highestLog2: hi } = options;
+  const normal = b * 2 ** -hi >= 2 ** -1000 && b * 2 ** -lo <= 2 ** 1000 && Math.abs(lo + shift) <= 1000 && Math.abs(hi + shift) <= 1000;
+  return normal ? shift : null;
 }
 
 function formatBytes(bytes: number): string {

@@ -31,7 +31,18 @@ export interface ScaledTensorCurves {
    * whole range
    */
   edgeGuessesLog2?: { overflow: number; flush: number };
+  /**
+   * optional factor g ≥ 1 by which the flushed share can at most grow per binade the scale falls, from the value
+   * itself: flushedEnergy(k − d) ≤ g^d·flushedEnergy(k) + FLUSH_GROWTH_ABSOLUTE. It holds with g = 8 for every law whose
+   * magnitudes' density does not rise away from 0 (a Gaussian's, a half-Gaussian's, any mixture of their scales):
+   * E[x²; |x| ≤ 2t] = 8·∫₀ᵗ y²·f(2y) dy ≤ 8·E[x²; |x| ≤ t]; a curve offering it gives some room above 8 for the
+   * rounding of its integrals. The search then bounds a share from what it knows a few binades up.
+   */
+  flushedEnergyGrowth?: number;
 }
+
+/** The absolute slack of {@link ScaledTensorCurves.flushedEnergyGrowth}'s bound (for shares that round to 0). */
+export const FLUSH_GROWTH_ABSOLUTE = 1e-12;
 
 export interface WindowOptions {
   /** the largest tolerated probability that any gradient overflows in one step, for the whole model */
@@ -96,20 +107,29 @@ export function lossScaleWindow(tensors: readonly ScaledTensorCurves[], options:
 export function lossScaleWindows(
   tensors: readonly ScaledTensorCurves[],
   options: Partial<WindowOptions> = {},
-): (setAside?: ReadonlySet<string>) => ScaleWindow {
+  flushLike?: FlushLike,
+): WindowsOf {
   const o = { ...DEFAULT_WINDOW_OPTIONS, ...options };
   if (!(o.riskBudget > 0 && o.riskBudget < 1)) throw new RangeError(`riskBudget must lie in (0, 1). Value: ${o.riskBudget}`);
   if (!(o.flushTolerance > 0 && o.flushTolerance < 1)) {
     throw new RangeError(`flushTolerance must lie in (0, 1). Value: ${o.flushTolerance}`);
   }
-  const search = new WindowSearch(tensors, o);
+  let shared: { search: WindowSearch; shift: number } | undefined;
+  if (flushLike !== undefined) {
+    const earlier = SEARCHES.get(flushLike.windows);
+    if (earlier === undefined || !earlier.sameTensors(tensors) || earlier.flushTolerance !== o.flushTolerance || !Number.isInteger(flushLike.shift)) {
+      throw new RangeError("flushLike must name windows of the same tensors, searched with the same flush tolerance, and a whole shift");
+    }
+    shared = { search: earlier, shift: flushLike.shift };
+  }
+  const search = new WindowSearch(tensors, o, shared);
   // each id's tensors, made on the first set aside: a remedy sets aside a few tensors, looked up instead of testing
   // every tensor against the set
   let byId: Map<string, number[]> | undefined;
   // each set aside's window, by its ids sorted: the remedies try the setters of both edges, often the same tensors
   // (the search is exact for a set, so a window found once is the window)
   const found = new Map<string, ScaleWindow>();
-  return (setAside) => {
+  const windows: WindowsOf = (setAside) => {
     const key = setAside === undefined || setAside.size === 0 ? "" : JSON.stringify([...setAside].sort());
     const known = found.get(key);
     if (known !== undefined) return { ...known };
@@ -130,7 +150,26 @@ export function lossScaleWindows(
     found.set(key, window);
     return { ...window };
   };
+  SEARCHES.set(windows, search);
+  return windows;
 }
+
+/** The windows of a set of gradient tensors and of its subsets, as {@link lossScaleWindows} makes them. */
+export type WindowsOf = (setAside?: ReadonlySet<string>) => ScaleWindow;
+
+/**
+ * Curves whose flushed shares are those of windows searched before, `shift` binades apart: the new tensors' i-th
+ * flushedEnergy (and its bounds) at k is, bit for bit, the earlier tensors' i-th at k + shift. So it is for one
+ * tensor's profiles in two formats whose flush bounds differ by the power of two 2^shift (the threshold flushBound·2^−k
+ * is then the same double). The new search reads and adds to what the earlier ones learnt of the flushed shares.
+ */
+export interface FlushLike {
+  windows: WindowsOf;
+  shift: number;
+}
+
+// each windows function's search, for a later search of the same tensors' flushed shares (FlushLike)
+const SEARCHES = new WeakMap<WindowsOf, WindowSearch>();
 
 // What the search knows of each tensor at one exponent for one of the two curves: the cheap bounds, a tighter upper
 // bound and the value (each once asked for), and for flushing whether it is tolerated. Each curve is monotone in k,
@@ -155,6 +194,10 @@ type Curve = "overflow" | "flush";
 
 class WindowSearch {
   private readonly n: number;
+  // the flush tables are kept by k + flushShift: shared with an earlier search whose exponents lie flushShift apart
+  private readonly flushShift: number;
+  // per tensor its flushedEnergyGrowth (0: none)
+  private readonly growth: Float64Array;
   // the tensors most likely to overflow first (lowest own overflow edge), and those most likely to flush (highest own
   // flush edge): the searches decide sooner when the tensors that decide are integrated first
   private readonly overflowOrder: number[];
@@ -162,9 +205,13 @@ class WindowSearch {
   // each tensor's place in overflowOrder (ties of the bounds are broken by it)
   private readonly overflowRank: Int32Array;
   private readonly allBounded: boolean;
-  private readonly tables = { overflow: new Map<number, Table>(), flush: new Map<number, Table>() };
-  // the tables of each curve by exponent, ascending
-  private readonly sorted: Record<Curve, Table[]> = { overflow: [], flush: [] };
+  private readonly tables: Record<Curve, Map<number, Table>>;
+  // per tensor the lowest flush key where its flushing was found tolerated (+∞: none), and the highest where it was
+  // not (−∞: none), shared with the flush tables: a share falling with k is tolerated above the one and not below the other
+  private readonly toleratedFrom: Float64Array;
+  private readonly untoleratedTo: Float64Array;
+  // the tables of each curve by exponent (for the flush curve: k + flushShift), ascending
+  private readonly sorted: Record<Curve, Table[]>;
   // exponents where the union bound was found over the budget (for some set of tensors): cheap bounds taken there
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
@@ -183,8 +230,19 @@ class WindowSearch {
   constructor(
     private readonly tensors: readonly ScaledTensorCurves[],
     private readonly o: WindowOptions,
+    flushFrom?: { search: WindowSearch; shift: number },
   ) {
     this.n = tensors.length;
+    this.flushShift = flushFrom === undefined ? 0 : flushFrom.search.flushShift + flushFrom.shift;
+    this.tables = { overflow: new Map(), flush: flushFrom === undefined ? new Map() : flushFrom.search.tables.flush };
+    this.sorted = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.sorted.flush };
+    this.toleratedFrom = flushFrom === undefined ? new Float64Array(this.n).fill(Infinity) : flushFrom.search.toleratedFrom;
+    this.untoleratedTo = flushFrom === undefined ? new Float64Array(this.n).fill(-Infinity) : flushFrom.search.untoleratedTo;
+    this.growth = new Float64Array(this.n);
+    for (let i = 0; i < this.n; i++) {
+      const g = (tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
+      if (g !== undefined && g >= 1 && Number.isFinite(g)) this.growth[i] = g;
+    }
     this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
     this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
     this.overflowRank = new Int32Array(this.n);
@@ -196,6 +254,17 @@ class WindowSearch {
     this.heap = new IndexHeap(this.highs, this.overflowRank);
     this.worstHighs = new Float64Array(this.n);
     this.visited = new Uint8Array(this.n);
+  }
+
+  get flushTolerance(): number {
+    return this.o.flushTolerance;
+  }
+
+  // whether `tensors` are this search's, in order (a later search shares the flush tables only then)
+  sameTensors(tensors: readonly ScaledTensorCurves[]): boolean {
+    if (tensors.length !== this.n) return false;
+    for (let i = 0; i < this.n; i++) if ((tensors[i] as ScaledTensorCurves).id !== (this.tensors[i] as ScaledTensorCurves).id) return false;
+    return true;
   }
 
   window(active: Uint8Array): ScaleWindow {
@@ -239,7 +308,8 @@ class WindowSearch {
     };
   }
 
-  private table(curve: Curve, k: number): Table {
+  private table(curve: Curve, at: number): Table {
+    const k = curve === "flush" ? at + this.flushShift : at;
     let table = this.tables[curve].get(k);
     if (table === undefined) {
       const n = this.n;
@@ -257,7 +327,7 @@ class WindowSearch {
   private cheapBounds(curve: Curve, i: number, table: Table): void {
     if (((table.flags[i] as number) & HAS_BOUNDS) !== 0) return;
     const t = this.tensors[i] as ScaledTensorCurves;
-    const b = curve === "overflow" ? t.overflowRiskBounds?.(table.k) : t.flushedEnergyBounds?.(table.k);
+    const b = curve === "overflow" ? t.overflowRiskBounds?.(table.k) : t.flushedEnergyBounds?.(table.k - this.flushShift);
     table.data[4 * i] = b === undefined ? -Infinity : b[0];
     table.data[4 * i + 1] = b === undefined ? Infinity : b[1];
     table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
@@ -296,10 +366,12 @@ class WindowSearch {
 
   // Bounds [pair[0], pair[1]] on tensor i's value at k from everything known of it at any exponent: the overflow risk
   // grows with k (what is known below k bounds it from below, above k from above), the flushed share falls.
-  private known(curve: Curve, k: number, i: number): Float64Array {
+  private known(curve: Curve, at: number, i: number): Float64Array {
     let lo = -Infinity;
     let hi = Infinity;
     const rising = curve === "overflow";
+    const k = rising ? at : at + this.flushShift;
+    const growth = rising ? 0 : (this.growth[i] as number);
     const sorted = this.sorted[curve];
     for (let j = 0; j < sorted.length; j++) {
       const t = sorted[j] as Table;
@@ -321,6 +393,11 @@ class WindowSearch {
       } else if (t.k < k === rising) {
         const across = a * (1 - ACROSS);
         if (across > lo) lo = across;
+        // a flushed share known a few binades up bounds it here by the curve's growth
+        if (growth > 0 && b < Infinity) {
+          const grown = b * growth ** (t.k - k) * (1 + ACROSS) + FLUSH_GROWTH_ABSOLUTE;
+          if (grown < hi) hi = grown;
+        }
       } else {
         const across = b * (1 + ACROSS);
         if (across < hi) hi = across;
@@ -585,14 +662,9 @@ class WindowSearch {
     const tolerance = this.o.flushTolerance;
     let ok: boolean | undefined;
     // tolerated below k: tolerated at k; not tolerated above k: not at k
-    const sorted = this.sorted.flush;
-    for (let j = 0; j < sorted.length; j++) {
-      const t = sorted[j] as Table;
-      const f = t.flags[i] as number;
-      if ((f & TOLERANCE_KNOWN) === 0) continue;
-      if (t.k < k && (f & TOLERATED) !== 0) ok = true;
-      else if (t.k > k && (f & TOLERATED) === 0) ok = false;
-    }
+    const key = table.k;
+    if ((this.untoleratedTo[i] as number) > key) ok = false;
+    else if ((this.toleratedFrom[i] as number) < key) ok = true;
     if (ok === undefined) {
       const known = this.known("flush", k, i);
       if ((known[1] as number) <= tolerance) ok = true;
@@ -608,6 +680,8 @@ class WindowSearch {
       ok = upper !== undefined && upper <= tolerance ? true : this.value("flush", k, i, table) <= tolerance;
     }
     table.flags[i] = (table.flags[i] as number) | TOLERANCE_KNOWN | (ok ? TOLERATED : 0);
+    if (ok && key < (this.toleratedFrom[i] as number)) this.toleratedFrom[i] = key;
+    if (!ok && key > (this.untoleratedTo[i] as number)) this.untoleratedTo[i] = key;
     return ok;
   }
 

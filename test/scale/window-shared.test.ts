@@ -1,0 +1,179 @@
+// Two ways the window's search reuses what it knows of the flushed shares (src/scale/window.ts):
+// - flushedEnergyGrowth: a share known a few binades up bounds it here. For a law whose magnitudes' density does not
+//   rise away from 0, E[x²; |x| ≤ 2t] = 8·∫₀ᵗ y²·f(2y) dy ≤ 8·E[x²; |x| ≤ t] (substitution x = 2y, f(2y) ≤ f(y));
+//   the curves claim 9 for the Gaussian laws without a cap (8 and room for the integrals' own error), which the
+//   integrals of src/risk/profile.ts must honour;
+// - FlushLike: a second set of curves whose shares are the first's a whole number of binades apart (bfloat16's flush
+//   bound is binary16's times 2^-101, IEEE 754-2019 / the bfloat16 format: 2^-126 against half of 2^-24) reads the
+//   first search's tables.
+// Either must leave every window exactly the definition's: every exponent tried, every curve evaluated exactly.
+import * as fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import type { MagnitudeProfile } from "../../src/magnitude/types.js";
+import { energyBelow, limitsFor } from "../../src/risk/index.js";
+import { FLUSH_GROWTH_ABSOLUTE, lossScaleWindow, lossScaleWindows, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
+import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
+import type { TensorPrediction } from "../../src/magnitude/types.js";
+import type { PrecisionPlan } from "../../src/spec/types.js";
+
+const OPTIONS = { riskBudget: 1e-4, flushTolerance: 1e-3, marginBinades: 2, lowestLog2: -12, highestLog2: 12 } as const;
+
+// The window by its definition, as test/scale/window-search.test.ts writes it out.
+function directWindow(tensors: readonly ScaledTensorCurves[], o: WindowOptions) {
+  const overflowOk = (k: number) => Math.min(1, tensors.reduce((sum, t) => sum + t.overflowRisk(k), 0)) <= o.riskBudget;
+  const flushOk = (k: number) => tensors.every((t) => t.flushedEnergy(k) <= o.flushTolerance);
+  let highest: number | null = null;
+  for (let k = o.lowestLog2; k <= o.highestLog2 && overflowOk(k); k++) highest = k;
+  let lowest: number | null = null;
+  for (let k = o.highestLog2; k >= o.lowestLog2 && flushOk(k); k--) lowest = k;
+  const firstLargest = (value: (t: ScaledTensorCurves) => number): string | null => {
+    let best: ScaledTensorCurves | null = null;
+    for (const t of tensors) if (best === null || value(t) > value(best)) best = t;
+    return best?.id ?? null;
+  };
+  const upper =
+    highest === null ? firstLargest((t) => t.overflowRisk(o.lowestLog2)) : highest < o.highestLog2 ? firstLargest((t) => t.overflowRisk(highest! + 1)) : null;
+  const lower =
+    lowest === null ? firstLargest((t) => t.flushedEnergy(o.highestLog2)) : lowest > o.lowestLog2 ? firstLargest((t) => t.flushedEnergy(lowest! - 1)) : null;
+  return { lowestLog2: lowest, highestLog2: highest, upperEdgeSetBy: upper, lowerEdgeSetBy: lower };
+}
+// (a search by firstTrue may give −0 for 0: the same number in every sentence and in JSON)
+const plus = (k: number | null) => (k === null ? null : k + 0);
+const edges = (w: ReturnType<typeof directWindow>) => ({ lowestLog2: plus(w.lowestLog2), highestLog2: plus(w.highestLog2), upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy });
+
+interface Shape {
+  overflowCentre: number;
+  flushCentre: number;
+  slope: number;
+  slack: number;
+  guess: number;
+}
+const shape: fc.Arbitrary<Shape> = fc.record({
+  overflowCentre: fc.double({ min: -14, max: 14, noNaN: true }),
+  flushCentre: fc.double({ min: -14, max: 14, noNaN: true }),
+  slope: fc.double({ min: 0.3, max: 4, noNaN: true }),
+  slack: fc.constantFrom(0, 1e-6, 1e-2, 0.5),
+  guess: fc.integer({ min: -6, max: 6 }),
+});
+
+// Logistic curves in k (a share falling as e^{−slope} per binade far from its centre, so it grows at most e^{slope} per
+// binade down: the growth offered), with loose bounds; `shift` moves the flush curve by whole binades, as another
+// format's flush bound does.
+function curves(shapes: readonly Shape[], shift = 0, growth = true): ScaledTensorCurves[] {
+  return shapes.map((s, i) => {
+    const flushedEnergy = (k: number) => 1 / (1 + Math.exp((k + shift - s.flushCentre) * s.slope));
+    const overflowRisk = (k: number) => 1 / (1 + Math.exp(-(k - s.overflowCentre) * s.slope));
+    const widen = (v: number): readonly [number, number] => [v * (1 - s.slack), Math.min(1, v * (1 + 1e3 * s.slack) + s.slack)];
+    return {
+      id: `t${i}`,
+      overflowRisk,
+      flushedEnergy,
+      overflowRiskBounds: (k: number) => widen(overflowRisk(k)),
+      flushedEnergyBounds: (k: number) => widen(flushedEnergy(k)),
+      edgeGuessesLog2: { overflow: Math.round(s.overflowCentre) + s.guess, flush: Math.round(s.flushCentre) - shift - s.guess },
+      ...(growth ? { flushedEnergyGrowth: Math.exp(s.slope) * (1 + 1e-9) } : {}),
+    };
+  });
+}
+
+describe("flushedEnergyGrowth", () => {
+  it("holds for the Gaussian laws' computed shares: a halved threshold keeps at most 9 times the share, plus 1e-12", () => {
+    fc.assert(
+      fc.property(
+        fc.constantFrom("gaussian" as const, "half-gaussian" as const),
+        fc.double({ min: -30, max: 30, noNaN: true }),
+        fc.double({ min: 0, max: 8.5, noNaN: true }),
+        fc.constantFrom(1, 16, 256, 65_536, 1e8),
+        fc.double({ min: 0, max: 0.9, noNaN: true }),
+        fc.double({ min: -40, max: 10, noNaN: true }),
+        (law, rmsLog2, log2Spread, elements, zeroFraction, below) => {
+          const profile: MagnitudeProfile = { elements, zeroFraction, rms: 2 ** rmsLog2, log2Spread, shape: law };
+          const t = 2 ** (rmsLog2 + below);
+          expect(energyBelow(profile, t / 2)).toBeLessThanOrEqual(9 * energyBelow(profile, t) + FLUSH_GROWTH_ABSOLUTE);
+        },
+      ),
+      { numRuns: 3000 },
+    );
+  });
+
+  it("is offered only for the Gaussian laws without a cap, where a cap's jump to 1 would break it", () => {
+    const capped: MagnitudeProfile = { elements: 256, zeroFraction: 0, rms: 100, log2Spread: 0.5, shape: "bounded", bound: 2 };
+    // at the cap the whole share lies below; half-way it is a small Gaussian share (a counterexample to any factor near 8)
+    expect(energyBelow(capped, 2)).toBeGreaterThan(1000 * energyBelow(capped, 1));
+    const tensor = (id: string, p: Partial<MagnitudeProfile>): TensorPrediction =>
+      ({ id, role: "weight-gradient", start: { elements: 256, zeroFraction: 0, rms: 1, log2Spread: 0.5, shape: "gaussian", ...p }, end: { elements: 256, zeroFraction: 0, rms: 2, log2Spread: 0.7, shape: "gaussian", ...p } }) as TensorPrediction;
+    const limits = limitsFor({ gradients: "binary16" } as PrecisionPlan, "binary16");
+    const growths = boundedLossScaleCurves(
+      [tensor("g", {}), tensor("h", { shape: "half-gaussian" }), tensor("b", { shape: "bounded", bound: 2 }), tensor("c", { bound: 4 }), tensor("u", { shape: "uniform" })],
+      limits,
+    ).map((c) => c.flushedEnergyGrowth);
+    expect(growths).toEqual([9, 9, undefined, undefined, undefined]);
+  });
+
+  it("leaves every window and subset window the definition's", () => {
+    fc.assert(
+      fc.property(fc.array(shape, { minLength: 1, maxLength: 10 }), fc.array(fc.array(fc.nat(12), { maxLength: 3 }), { maxLength: 3 }), (shapes, asides) => {
+        const tensors = curves(shapes);
+        const windowOf = lossScaleWindows(tensors, OPTIONS);
+        expect(edges(windowOf())).toEqual(edges(directWindow(tensors, OPTIONS)));
+        for (const aside of asides) {
+          const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+          const rest = tensors.filter((t) => !ids.has(t.id));
+          if (rest.length === 0) continue;
+          expect(edges(windowOf(ids))).toEqual(edges(directWindow(rest, OPTIONS)));
+        }
+      }),
+      { numRuns: 300 },
+    );
+  });
+});
+
+describe("FlushLike", () => {
+  it("gives the window of curves whose shares lie whole binades apart as a fresh search does", () => {
+    fc.assert(
+      fc.property(
+        fc.array(shape, { minLength: 1, maxLength: 10 }),
+        fc.array(fc.nat(12), { maxLength: 3 }),
+        fc.integer({ min: -20, max: 20 }),
+        fc.boolean(),
+        (shapes, aside, shift, growth) => {
+          const first = curves(shapes, 0, growth);
+          const windowOf = lossScaleWindows(first, OPTIONS);
+          windowOf();
+          if (aside.length > 0) windowOf(new Set(aside.map((i) => first[i % first.length]!.id)));
+          // the second curves at k are the first's at k + shift
+          const second = curves(shapes, shift, growth);
+          const shared = lossScaleWindows(second, OPTIONS, { windows: windowOf, shift })();
+          expect(shared).toEqual(lossScaleWindow(second, OPTIONS));
+          expect(edges(shared)).toEqual(edges(directWindow(second, OPTIONS)));
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
+
+  it("reads the earlier search's shares: the second search evaluates no flushed share the first knew", () => {
+    const shapes: Shape[] = Array.from({ length: 40 }, (_, i) => ({ overflowCentre: 6 + i / 10, flushCentre: -3 - i / 20, slope: 2, slack: 0.5, guess: 1 }));
+    const first = curves(shapes);
+    const windowOf = lossScaleWindows(first, OPTIONS);
+    const w = windowOf();
+    let asked = 0;
+    const second = curves(shapes, 4).map((c) => ({
+      ...c,
+      flushedEnergy: (k: number) => (asked++, c.flushedEnergy(k)),
+      flushedEnergyBounds: (k: number) => (asked++, c.flushedEnergyBounds!(k)),
+    }));
+    // four binades apart, the lowest edge moves by four and every tensor was found tolerated there before
+    const shared = lossScaleWindows(second, OPTIONS, { windows: windowOf, shift: 4 })();
+    expect(shared.lowestLog2).toBe(w.lowestLog2! - 4);
+    expect(asked).toBeLessThan(second.length);
+  });
+
+  it("refuses other tensors or another tolerance", () => {
+    const first = curves([{ overflowCentre: 3, flushCentre: -3, slope: 1, slack: 0, guess: 0 }]);
+    const windowOf = lossScaleWindows(first, OPTIONS);
+    expect(() => lossScaleWindows(first, { ...OPTIONS, flushTolerance: 1e-2 }, { windows: windowOf, shift: 1 })).toThrow(RangeError);
+    expect(() => lossScaleWindows([{ ...first[0]!, id: "other" }], OPTIONS, { windows: windowOf, shift: 1 })).toThrow(RangeError);
+    expect(() => lossScaleWindows(first, OPTIONS, { windows: windowOf, shift: 0.5 })).toThrow(RangeError);
+  });
+});
