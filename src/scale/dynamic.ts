@@ -200,31 +200,45 @@ class Evaluation {
   // Whether this step overflows: certainly at probability 1, never at 0, else when a uniform draw falls below the
   // probability (one draw exactly when the probability lies strictly between 0 and 1). With bounds, each question
   // is answered as soon as the bounds decide it, and by the exact value otherwise: the same answers, the same draws.
+  // (Each question is its own loop, not a closure per question: this runs once per step.)
   overflows(random: () => number): boolean {
     const b = this.bounds;
     if (b === undefined) {
       const p = this.overflow as number;
       return p >= 1 || (p > 0 && random() < p);
     }
-    if (decide(b, (v) => v >= 1, (low, high) => (low >= 1 ? true : high < 1 ? false : undefined))) return true;
-    if (!decide(b, (v) => v > 0, (low, high) => (low > 0 ? true : high <= 0 ? false : undefined))) return false;
+    // p ≥ 1?
+    for (;;) {
+      if (b.exact) {
+        if (b.low >= 1) return true;
+        break;
+      }
+      if (b.low >= 1) return true;
+      if (b.high < 1) break;
+      b.narrow();
+    }
+    // p > 0?
+    for (;;) {
+      if (b.exact) {
+        if (!(b.low > 0)) return false;
+        break;
+      }
+      if (b.low > 0) break;
+      if (b.high <= 0) return false;
+      b.narrow();
+    }
     const r = random();
-    return decide(b, (v) => r < v, (low, high) => (r < low ? true : r >= high ? false : undefined));
+    for (;;) {
+      if (b.exact) return r < b.low;
+      if (r < b.low) return true;
+      if (r >= b.high) return false;
+      b.narrow();
+    }
   }
 
   flushes(): boolean {
     if (this.flushing === undefined) this.flushing = this.model.flushesTooMuch(this.scale, this.progress);
     return this.flushing;
-  }
-}
-
-// A question about a bounded probability: answered by the bounds when they tell, else after narrowing them.
-function decide(b: OverflowBounds, exact: (value: number) => boolean, byBounds: (low: number, high: number) => boolean | undefined): boolean {
-  for (;;) {
-    if (b.exact) return exact(b.low);
-    const answer = byBounds(b.low, b.high);
-    if (answer !== undefined) return answer;
-    b.narrow();
   }
 }
 

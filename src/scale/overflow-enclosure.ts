@@ -36,7 +36,7 @@ const PHI0 = 0.3989422804014327;
 // what separates the computed integral from I, relative to the upper bound (see above)
 const WIDEN = 2e-5;
 
-interface LevelMoments {
+export interface LevelMoments {
   mean: number;
   variance: number;
   /** the shells' edges, as offsets from the mean in binades (−∞ first, +∞ last) */
@@ -204,23 +204,42 @@ export function enclosureApplies(profile: MagnitudeProfile, t: number): boolean 
 export function anyAboveEnclosure(profile: MagnitudeProfile, t: number): [number, number] | null {
   if (!enclosureApplies(profile, t)) return null;
   const n = profile.elements * (1 - profile.zeroFraction);
-  const s = profile.log2Spread;
   const x = Math.log2(t) - Math.log2(profile.rms);
-  if (!Number.isFinite(x)) return null;
-  const at = Math.log(n) * PER_LN;
-  const below = Math.floor(at);
-  const above = Math.ceil(at);
-  const a = levelMoments(below);
-  const b = levelMoments(above);
+  if (!enclosureAt(n, profile.log2Spread, x, ENCLOSED, 0)) return null;
+  return [ENCLOSED[0]!, ENCLOSED[1]!];
+}
+const ENCLOSED = new Float64Array(2);
+
+/**
+ * {@link anyAboveEnclosure} from plain numbers, for callers that keep a tensor's count, spread and x = log2(t/rms)
+ * in typed arrays (the dynamic simulation): [low, high] into `into` at `at` and `at + 1`, false (nothing written)
+ * where x is not finite. The caller checks that the bounds apply ({@link enclosureApplies}); the same arithmetic as
+ * anyAboveEnclosure, so the same bounds bit for bit.
+ */
+export function enclosureAt(n: number, s: number, x: number, into: Float64Array, at: number): boolean {
+  const k = Math.log(n) * PER_LN;
+  return enclosureWith(levelMoments(Math.floor(k)), levelMoments(Math.ceil(k)), s, x, into, at);
+}
+
+/** The grid counts' moments {@link enclosureAt} takes for a count n: below n and above it (for callers that keep them). */
+export function enclosureMoments(n: number): [LevelMoments, LevelMoments] {
+  const k = Math.log(n) * PER_LN;
+  return [levelMoments(Math.floor(k)), levelMoments(Math.ceil(k))];
+}
+
+/** {@link enclosureAt} with the grid counts' moments given ({@link enclosureMoments}). */
+export function enclosureWith(a: LevelMoments, b: LevelMoments, s: number, x: number, into: Float64Array, at: number): boolean {
+  if (!Number.isFinite(x)) return false;
   const valueA = taylorValue(x, s, a);
   const valueB = taylorValue(x, s, b);
   const bound = remainder(x, s, a, b, valueB) / (6 * s * s * s);
   const low = valueA - bound;
   const high = valueB + bound;
   const widen = WIDEN * Math.max(0, high);
-  return [Math.max(0, low - widen), Math.min(1, high + widen)];
+  into[at] = Math.max(0, low - widen);
+  into[at + 1] = Math.min(1, high + widen);
+  return true;
 }
-
 
 /**
  * Cruder bounds on {@link probabilityAnyAbove} than {@link anyAboveEnclosure}'s, for a fraction of their cost (two
@@ -285,8 +304,14 @@ export function shiftLevels(n: number, into: Float64Array, at: number): void {
  * The caller checks that the bounds apply ({@link enclosureApplies}).
  */
 export function shiftBounds(x: number, s: number, high: number, low: number, lowMass: number, into: Float64Array, at: number): void {
-  const upper = normalSf((x - high) / s) + 2 ** -64;
+  const tail = normalSf((x - high) / s);
+  into[at + 1] = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  // c_lo < c_hi, so the lower bound's tail is at most the upper's (Q falls; the fast tail within 2.4e-7 of that order):
+  // under 1e-15 with it, without evaluating it
+  if (tail < 1e-15 / (1 + 1e-6)) {
+    into[at] = 0;
+    return;
+  }
   const lower = lowMass * normalSf((x - low) / s);
   into[at] = lower < 1e-15 ? 0 : lower * (1 - 1e-4);
-  into[at + 1] = Math.min(1, upper * (1 + 1e-4));
 }

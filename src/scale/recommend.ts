@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosureApplies, shiftBounds, shiftLevels } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -291,6 +291,8 @@ function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
 const PAIR = new Float64Array(2);
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
+// one tensor's moment bounds in the simulation's narrowing
+const ENCLOSURE = new Float64Array(2);
 // Bounds on one profile's any-above probability at t into `into` (low NaN when there is none). Where the law has moment
 // bounds (src/scale/overflow-enclosure.ts): first the shifted tails (two normal tails), which settle a tensor far from
 // t alone; else, at a spread of a binade or more, the moment bounds (a few normal tails more, far tighter, both ways).
@@ -556,6 +558,64 @@ class HorizonPoint {
     return c;
   }
 
+  // per tensor here: what the moment bounds take of its profile (src/scale/overflow-enclosure.ts enclosureWith), each
+  // made on its first use without making the profile (a few hundred of the tensors are ever enclosed at a point): the
+  // moments of the grid counts about its count of nonzero elements, the spread, log2 of the rms (computed as
+  // profileBetween computes the rms, so the same x as anyAboveEnclosure's), the bound (+∞ without one), and whether the
+  // bounds apply (enclosureApplies: a Gaussian law, 16 elements or more, a spread, a positive rms): 0 not made yet, 1
+  // they apply, 2 they do not
+  private moments_: { below: LevelMoments[]; above: LevelMoments[]; spread: Float64Array; rmsLog2: Float64Array; bound: Float64Array; applies: Uint8Array } | undefined;
+
+  private momentNumbers(): NonNullable<HorizonPoint["moments_"]> {
+    const n = this.n;
+    const m = { below: new Array<LevelMoments>(n), above: new Array<LevelMoments>(n), spread: new Float64Array(n), rmsLog2: new Float64Array(n), bound: new Float64Array(n), applies: new Uint8Array(n) };
+    this.moments_ = m;
+    return m;
+  }
+
+  private momentsOf(i: number, m: NonNullable<HorizonPoint["moments_"]>): void {
+    const g = this.gradients[i]!;
+    const p = this.progress;
+    // the profile here (profileAt): the start's or end's own at the ends, else profileBetween's fields
+    const from = p <= 0 ? g.start : p >= 1 ? g.end : undefined;
+    const base = from ?? g.start;
+    const count = base.elements * (1 - base.zeroFraction);
+    let rms: number;
+    let spread: number;
+    if (from !== undefined) {
+      rms = from.rms;
+      spread = from.log2Spread;
+    } else {
+      const { start, end } = g;
+      rms = start.rms > 0 && end.rms > 0 ? start.rms ** (1 - p) * end.rms ** p : start.rms;
+      spread = start.log2Spread + (end.log2Spread - start.log2Spread) * p;
+    }
+    const shape = base.shape;
+    const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
+    if (!(rms > 0 && spread > 0 && gaussianLaw && count >= 16 && Number.isFinite(count))) {
+      m.applies[i] = 2;
+      return;
+    }
+    m.applies[i] = 1;
+    m.spread[i] = spread;
+    m.rmsLog2[i] = Math.log2(rms);
+    m.bound[i] = base.bound !== undefined && base.bound > 0 ? base.bound : Infinity;
+    const moments = enclosureMoments(count);
+    m.below[i] = moments[0];
+    m.above[i] = moments[1];
+  }
+
+  /**
+   * Tensor i's moment bounds at t (log2 t given) into `into` (anyAboveEnclosure's, bit for bit), or false where they do
+   * not apply.
+   */
+  enclose(i: number, t: number, tLog2: number, into: Float64Array): boolean {
+    const m = this.moments_ ?? this.momentNumbers();
+    if (m.applies[i] === 0) this.momentsOf(i, m);
+    if (m.applies[i] === 2 || !(t > 0) || t > m.bound[i]!) return false;
+    return enclosureWith(m.below[i]!, m.above[i]!, m.spread[i]!, tLog2 - m.rmsLog2[i]!, into, 0);
+  }
+
   profile(i: number): MagnitudeProfile {
     let p = this.profiles[i];
     if (p === undefined) {
@@ -591,13 +651,18 @@ class OverflowNarrowing implements OverflowBounds {
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
   // the tensors whose p_i can still move the product (upper bound above 2^−54), the widest bounds on top: by
-  // log(1 − low) − log(1 − high), what each leaves open of the product
-  private readonly heap: IndexHeap;
-  private readonly open: Float64Array;
+  // open = log(1 − low) − log(1 − high), what each leaves open of the product (keyed by 1 − e^{−open}, the same order)
+  // (both made when the heap is first filled: often the sweep's bounds decide, and it never is)
+  private heap: IndexHeap | undefined;
+  private open: Float64Array | undefined;
   private batch = 1;
   private largest = -1;
   // true from the first narrowing until the next has swept every tensor's shifted-tail bounds
   private sweepPending = false;
+  // true from the sweep until the next narrowing fills the heap (often the sweep's bounds decide, and it never is)
+  private heapPending = false;
+  // log2 of the level
+  private readonly levelLog2: number;
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
   // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product
   private readonly size: number;
@@ -616,8 +681,7 @@ class OverflowNarrowing implements OverflowBounds {
     this.lows = new Float64Array(n);
     this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
-    this.open = new Float64Array(n);
-    this.heap = new IndexHeap(this.open);
+    this.levelLog2 = Math.log2(level);
     let size = 1;
     while (size < n) size *= 2;
     this.size = size;
@@ -645,10 +709,12 @@ class OverflowNarrowing implements OverflowBounds {
     for (j >>= 1; j >= 1; j >>= 1) tree[j] = tree[2 * j]! * tree[2 * j + 1]!;
   }
 
-  // into the heap, keyed by what its bounds leave open
+  // into the heap, keyed by what its bounds leave open: 1 − (1 − high)/(1 − low) = 1 − e^{−open}, in the order of open
+  // itself without two logarithms
   private push(i: number): void {
-    this.open[i] = Math.log1p(-this.lows[i]!) - Math.log1p(-this.highs[i]!);
-    this.heap.push(i);
+    const low = this.lows[i]!;
+    this.open![i] = (this.highs[i]! - low) / (1 - low);
+    this.heap!.push(i);
   }
 
   /** whether p_i is known exactly */
@@ -715,27 +781,38 @@ class OverflowNarrowing implements OverflowBounds {
       // every tensor's shifted-tail bounds here where tighter, in one pass (a Gaussian-law tensor by two normal
       // tails): enough for most; the rest are then ordered by what they leave open
       this.sweepPending = false;
-      this.point.sweep(Math.log2(this.level), this.lows, highs, this.state);
+      this.point.sweep(this.levelLog2, this.lows, highs, this.state);
       this.buildProducts();
-      for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
+      for (let i = 0; i < n; i++) {
+        if (this.state[i] !== 2 && highs[i]! > 2 ** -54) {
+          this.heapPending = true;
+          break;
+        }
+      }
     } else {
+      if (this.heapPending) {
+        this.heapPending = false;
+        this.open = new Float64Array(n);
+        this.heap = new IndexHeap(this.open);
+        for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
+      }
       // a batch of work: an upper bound costs about a quarter of an integral
       let work = this.batch;
-      while (work > 0 && this.heap.size > 0) {
-        const i = this.heap.pop();
+      const heap = this.heap;
+      while (heap !== undefined && work > 0 && heap.size > 0) {
+        const i = heap.pop();
         if (this.state[i] === 0) {
           this.state[i] = 1;
-          const profile = this.point.profile(i);
           // bounds from the moments of the largest element's level where the law allows, else the segment bound
-          const enclosure = anyAboveEnclosure(profile, this.level);
-          const upper = enclosure === null ? probabilityAnyAboveUpper(profile, this.level) : enclosure[1];
+          const enclosed = this.point.enclose(i, this.level, this.levelLog2, ENCLOSURE);
+          const upper = enclosed ? ENCLOSURE[1]! : probabilityAnyAboveUpper(this.point.profile(i), this.level);
           if (upper < highs[i]!) {
             highs[i] = upper;
             this.setFactor(this.highFactors, i, 1 - upper);
           }
-          if (enclosure !== null && enclosure[0] > this.lows[i]!) {
-            this.lows[i] = enclosure[0];
-            this.setFactor(this.lowFactors, i, 1 - enclosure[0]);
+          if (enclosed && ENCLOSURE[0]! > this.lows[i]!) {
+            this.lows[i] = ENCLOSURE[0]!;
+            this.setFactor(this.lowFactors, i, 1 - ENCLOSURE[0]!);
           }
           if (highs[i]! > 2 ** -54) this.push(i);
           work -= 0.25;
@@ -746,7 +823,7 @@ class OverflowNarrowing implements OverflowBounds {
       }
       this.batch = Math.ceil(this.batch * 1.1);
     }
-    if (this.heap.size === 0 && !this.sweepPending) {
+    if ((this.heap === undefined || this.heap.size === 0) && !this.sweepPending && !this.heapPending) {
       const value = this.value();
       this.low = value;
       this.high = value;
