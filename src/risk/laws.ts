@@ -334,12 +334,21 @@ const GAUSSIAN = 0;
 const UNIFORM = 1;
 const LOG_NORMAL = 2;
 const CONSTANT = 3;
+// The current integrand's threshold, element count, positive share and element spread, the current draw's scale and
+// spread, the lattice's step and spread: slots of one typed array, not module variables (a double stored in a module
+// variable is boxed at every store: garbage on every call)
+const I_T = 0;
+const I_COUNT = 1;
+const I_SHARE = 2;
+const I_SPREAD = 3;
+const D_RMS = 4;
+const D_SPREAD = 5;
+const L_STEP = 6;
+const L_SPREAD = 7;
+const STATE = new Float64Array(8);
+STATE[I_SHARE] = 1;
 let integrandKind = CLOSURE;
 let integrandLaw = GAUSSIAN;
-let integrandT = 0;
-let integrandCount = 0;
-let integrandShare = 1;
-let integrandSpread = 0;
 let integrandClosure: (r: number) => number = () => 0;
 function lawAbove(r: number, t: number): number {
   switch (integrandLaw) {
@@ -348,7 +357,7 @@ function lawAbove(r: number, t: number): number {
     case UNIFORM:
       return uniformAbove(r, t);
     case LOG_NORMAL:
-      return logNormalAbove(integrandSpread, r, t);
+      return logNormalAbove((STATE[I_SPREAD] as number), r, t);
     default:
       return r >= t ? 1 : 0;
   }
@@ -360,7 +369,7 @@ function lawBelow(r: number, t: number): number {
     case UNIFORM:
       return uniformBelow(r, t);
     case LOG_NORMAL:
-      return logNormalBelow(integrandSpread, r, t);
+      return logNormalBelow((STATE[I_SPREAD] as number), r, t);
     default:
       return r <= t ? 1 : 0;
   }
@@ -372,7 +381,7 @@ function lawEnergyBelow(r: number, t: number): number {
     case UNIFORM:
       return uniformEnergyBelow(r, t);
     case LOG_NORMAL:
-      return logNormalEnergyBelow(integrandSpread, r, t);
+      return logNormalEnergyBelow((STATE[I_SPREAD] as number), r, t);
     default:
       return r <= t ? 1 : 0;
   }
@@ -380,11 +389,11 @@ function lawEnergyBelow(r: number, t: number): number {
 function integrand(r: number): number {
   switch (integrandKind) {
     case ANY_ABOVE:
-      return anyOf(integrandShare * lawAbove(r, integrandT), integrandCount);
+      return anyOf((STATE[I_SHARE] as number) * lawAbove(r, (STATE[I_T] as number)), (STATE[I_COUNT] as number));
     case BELOW:
-      return lawBelow(r, integrandT);
+      return lawBelow(r, (STATE[I_T] as number));
     case ENERGY_BELOW:
-      return lawEnergyBelow(r, integrandT);
+      return lawEnergyBelow(r, (STATE[I_T] as number));
     default:
       return integrandClosure(r);
   }
@@ -396,8 +405,8 @@ function integrand(r: number): number {
  */
 function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, positiveOnly: boolean): number {
   integrandKind = kind;
-  integrandT = t;
-  integrandCount = nonzeroElements(profile);
+  STATE[I_T] = t;
+  STATE[I_COUNT] = nonzeroElements(profile);
   const bound = profile.bound;
   let share = 0.5;
   let law = GAUSSIAN;
@@ -419,7 +428,7 @@ function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, pos
       const s = profile.elementLog2Spread ?? 0;
       if (s > 0) {
         law = LOG_NORMAL;
-        integrandSpread = s;
+        STATE[I_SPREAD] = s;
       } else {
         law = CONSTANT;
         share = 1;
@@ -428,7 +437,7 @@ function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, pos
     }
   }
   integrandLaw = law;
-  integrandShare = positiveOnly ? share : 1;
+  STATE[I_SHARE] = positiveOnly ? share : 1;
   // a bound (shape "bounded", or any shape's cap) decides the law at t for every draw, as in elementLaw
   if (bound !== undefined && bound > 0) {
     if (kind === ANY_ABOVE ? t > bound : t >= bound) return kind === ANY_ABOVE ? 0 : 1;
@@ -507,10 +516,10 @@ function anyAboveReached(x: number, s: number): number {
   const v = x + REACHED_Z * s;
   // g(v) near A needs a tail share near 1 (at v = 0 the Gaussian's is 0.32): no law evaluation past the scale
   if (!(v < 0)) return NaN;
-  const n = integrandCount;
-  const limit = anyOf(integrandShare, n);
+  const n = (STATE[I_COUNT] as number);
+  const limit = anyOf((STATE[I_SHARE] as number), n);
   if (!(limit > 0)) return NaN;
-  const lower = anyOf(integrandShare * lawAbove(1, 2 ** v) * (1 - REACHED_FIT), n) * REACHED_MASS;
+  const lower = anyOf((STATE[I_SHARE] as number) * lawAbove(1, 2 ** v) * (1 - REACHED_FIT), n) * REACHED_MASS;
   return lower >= limit * (1 - REACHED_GAP) ? limit : NaN;
 }
 
@@ -581,7 +590,7 @@ function massBetween(a: number, b: number): number {
 }
 // φ(z)·f at z, for the panels' adaptive rule
 function weighted(z: number): number {
-  return normalPdf(z) * integrand(drawRms * 2 ** (drawSpread * z));
+  return normalPdf(z) * integrand((STATE[D_RMS] as number) * 2 ** ((STATE[D_SPREAD] as number) * z));
 }
 // adaptive Simpson (Lyness 1969; the Richardson term added) on [a, b] of φ·f, with its middle value and whole sum
 function adaptSimpson(a: number, fa: number, m: number, fm: number, b: number, fb: number, whole: number, tolerance: number, depth: number): number {
@@ -660,21 +669,19 @@ function stepwiseSum(): number {
 }
 
 // the draw of the current sum, and which nodes' values VALUES holds (KNOWN[i] === drawStamp)
-let drawRms = 0;
-let drawSpread = 0;
 let drawFactors: Float64Array = VALUES;
 let drawStamp = 0;
 const KNOWN = new Float64Array(VALUES.length);
 // a new draw: the node values held in VALUES are stale from here on
 function beginDraw(rms: number, log2Spread: number): void {
-  drawRms = rms;
-  drawSpread = log2Spread;
+  STATE[D_RMS] = rms;
+  STATE[D_SPREAD] = log2Spread;
   drawFactors = nodeFactors(log2Spread);
   drawStamp++;
 }
 function nodeValue(i: number): number {
   if (KNOWN[i] === drawStamp) return VALUES[i] as number;
-  const value = integrand(drawRms * factorAt(drawFactors, i));
+  const value = integrand((STATE[D_RMS] as number) * factorAt(drawFactors, i));
   VALUES[i] = value;
   KNOWN[i] = drawStamp;
   return value;
@@ -778,6 +785,11 @@ for (let i = DRAW_NODES.w.length - 1; i >= 0; i--) SUFFIX[i] = (SUFFIX[i + 1] as
 // without the quadrature (it differs from the rule's sum in the last digits: the rule is exact for these to
 // rounding, as the mass of the shifted weights beyond ±9 is negligible for the terms that count).
 const SMALL_RATIO = 0.5;
+// MOMENT_STEPS: the log-normal moments' factors e^{(mσ)²/2} for m = 1, 3, 5, … (or 3, 5, …) by products: the next is
+// this one times e^{2σ²(m + 1)} = q^{(m + 1)/2}, q = e^{4σ²}, itself the last ratio times q; two products a term
+// instead of an exp. After
+// the n terms the series takes (a few at these small ratios, at most 40) each factor is within about n² ulp of its exp
+// (test/risk/laws.test.ts holds the sums to 1e-12 of the termwise exps).
 
 /**
  * E over draws of erf(a/√2), a = t/r, log2 r ~ N(log2 rms, spread²), when every draw of the rule has a ≤ 1/2;
@@ -792,13 +804,19 @@ export function gaussianBelowOverDraws(ratio: number, spread: number): number {
   let power = x;
   let coefficient = 1;
   let sum = 0;
+  // the moments' factors e^{(mσ)²/2} by products (see MOMENT_STEPS)
+  let moment = Math.exp(0.5 * sigma * sigma);
+  const q = Math.exp(4 * sigma * sigma);
+  let rise = q;
   for (let n = 0; n < 40; n++) {
     const m = 2 * n + 1;
-    const term = (coefficient * power * Math.exp(0.5 * (m * sigma) ** 2)) / m;
+    const term = (coefficient * power * moment) / m;
     sum += term;
     if (Math.abs(term) < 1e-17 * Math.abs(sum)) return Math.min(1, Math.max(0, 1.1283791670955126 * sum));
     coefficient *= -1 / (n + 1);
     power *= x2;
+    moment *= rise;
+    rise *= q;
   }
   return NaN;
 }
@@ -812,13 +830,19 @@ export function gaussianEnergyBelowOverDraws(ratio: number, spread: number): num
   let power = ratio * a2;
   let coefficient = 1;
   let sum = 0;
+  // e^{(mσ)²/2} from m = 3 by products (see MOMENT_STEPS)
+  let moment = Math.exp(4.5 * sigma * sigma);
+  const q = Math.exp(4 * sigma * sigma);
+  let rise = q * q;
   for (let k = 0; k < 40; k++) {
     const m = 2 * k + 3;
-    const term = (coefficient * power * Math.exp(0.5 * (m * sigma) ** 2)) / m;
+    const term = (coefficient * power * moment) / m;
     sum += term;
     if (Math.abs(term) < 1e-17 * Math.abs(sum)) return Math.min(1, Math.max(0, 2 * normalPdf(0) * sum));
     coefficient *= -0.5 / (k + 1);
     power *= a2;
+    moment *= rise;
+    rise *= q;
   }
   return NaN;
 }
@@ -1168,7 +1192,6 @@ let lattice = new Float64Array(2048);
 // off the rows (the Gaussian share below) never touches it, and 2048 points cost more to clear than the search
 let latticeStale = true;
 let latticeBase = 0;
-let latticeStep = 0;
 // Lattice points are numbered from the search's start: point m stands at v = (origin + m)·step, the origin held in
 // LATTICE_ORIGIN. The numbers stay small integers when the start is far out in points (a spread near 0 puts them close
 // together), which keeps the compiled loops on small-integer arithmetic; origin + m is an integer below 2^53, so v is
@@ -1178,7 +1201,7 @@ const LATTICE_ORIGIN = new Float64Array(1);
 let latticeClosure: ((v: number) => number) | null = null;
 function latticeValue(v: number): number {
   if (latticeClosure !== null) return latticeClosure(v);
-  integrandT = 2 ** v;
+  STATE[I_T] = 2 ** v;
   return integrand(1);
 }
 // make lattice points [from, to] addressable, keeping the values already there
@@ -1204,7 +1227,7 @@ function latticeAt(m: number): number {
   const at = m - latticeBase;
   let value = lattice[at] as number;
   if (value !== value) {
-    value = latticeValue(((LATTICE_ORIGIN[0] as number) + m) * latticeStep);
+    value = latticeValue(((LATTICE_ORIGIN[0] as number) + m) * (STATE[L_STEP] as number));
     lattice[at] = value;
   }
   return value;
@@ -1259,7 +1282,7 @@ function latticeFill(from: number, to: number, centre: number): number {
   for (let m = from; m <= to; m++) {
     const at = m - latticeBase;
     if ((values[at] as number) === (values[at] as number)) continue;
-    values[at] = m <= bottom ? latticeLowLimit : m >= top ? latticeHighLimit : latticeValue(((LATTICE_ORIGIN[0] as number) + m) * latticeStep);
+    values[at] = m <= bottom ? latticeLowLimit : m >= top ? latticeHighLimit : latticeValue(((LATTICE_ORIGIN[0] as number) + m) * (STATE[L_STEP] as number));
   }
   return Math.max(top, centre);
 }
@@ -1272,7 +1295,7 @@ let mixtureCount = 0;
 function latticeMixture(j: number): number {
   for (let k = 0; k < mixtureCount; k++) if (MIXTURE_AT[k] === j) return MIXTURE_VALUE[k] as number;
   if (latticeTable) {
-    const value = gaussianTableValue(BELOW, latticeSpread, ((LATTICE_ORIGIN[0] as number) + j) * latticeStep);
+    const value = gaussianTableValue(BELOW, (STATE[L_SPREAD] as number), ((LATTICE_ORIGIN[0] as number) + j) * (STATE[L_STEP] as number));
     if (!Number.isNaN(value)) return memoMixture(j, value);
   }
   const w = DRAW_NODES.w;
@@ -1296,7 +1319,7 @@ function latticeMixture(j: number): number {
   for (let i = skip; i < count; i++) {
     let value = values[offset - i] as number;
     if (value !== value) {
-      value = latticeValue(((LATTICE_ORIGIN[0] as number) + (j + half - i)) * latticeStep);
+      value = latticeValue(((LATTICE_ORIGIN[0] as number) + (j + half - i)) * (STATE[L_STEP] as number));
       values[offset - i] = value;
     }
     sum += (w[i] as number) * value;
@@ -1316,7 +1339,6 @@ function memoMixture(j: number, sum: number): number {
 // (test/risk/share-tables.test.ts; test/risk/laws.test.ts bounds it against the lattice's own sums where their ripple
 // is small).
 let latticeTable = false;
-let latticeSpread = 0;
 
 /**
  * The level v (in binades above the median scale) where the draw mixture of a scale-family probability crosses
@@ -1356,8 +1378,8 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   latticeClosure = null;
   const spread = profile.log2Spread;
   if (!(spread > 0)) return crossing(latticeValue, p, decreasing, 1e-9);
-  if (decreasing && p > 0 && p < anyOf(integrandShare, integrandCount)) {
-    if (viaRows && integrandLaw === GAUSSIAN && integrandCount >= GRID_COUNT && spread >= LEVEL_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) {
+  if (decreasing && p > 0 && p < anyOf((STATE[I_SHARE] as number), (STATE[I_COUNT] as number))) {
+    if (viaRows && integrandLaw === GAUSSIAN && (STATE[I_COUNT] as number) >= GRID_COUNT && spread >= LEVEL_MIN_SPREAD && spread <= TABLE_MAX_SPREAD) {
       const level = levelTableValue(spread, p);
       if (level === level) return level;
     }
@@ -1369,7 +1391,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   }
   // the share below a level does not depend on the element count: tensors of one spread and law share it
   const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
-  const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
+  const elementSpread = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
   if (slot >= 0) {
     const at = slot * 4;
     if (BELOW_KEYS[at] === integrandLaw && BELOW_KEYS[at + 1] === elementSpread && BELOW_KEYS[at + 2] === spread && BELOW_KEYS[at + 3] === p) {
@@ -1397,7 +1419,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   latticeHighLimit = decreasing ? 0 : 1;
   latticeLowLimit = decreasing ? 1 : 0;
   latticeTable = viaRows && !decreasing && integrandLaw === GAUSSIAN && spread >= TABLE_MIN_SPREAD && spread <= TABLE_MAX_SPREAD;
-  latticeSpread = spread;
+  STATE[L_SPREAD] = spread;
   const level = latticeCrossing(spread, p, decreasing, start, jump);
   latticeTable = false;
   latticeHighLimit = NaN;
@@ -1431,7 +1453,7 @@ function belowSlot(spread: number, p: number): number {
 // `firstJump`: the lattice points of the first step away from the start (doubling after it).
 function latticeCrossing(spread: number, p: number, decreasing: boolean, direct: number, firstJump: number): number {
   const step = spread * DRAW_STEP;
-  latticeStep = step;
+  STATE[L_STEP] = step;
   // a search with a far crossing (a spread near 0 puts the lattice points close together) grows the lattice; the
   // next search starts from the usual size again rather than clearing the grown one each time
   if (lattice.length > 2048) lattice = new Float64Array(2048);
@@ -1538,7 +1560,7 @@ function roughUpperQuantile(q: number): number {
 }
 // the current any-above integrand at the median scale: g(v) = anyOf(share·above(1, 2^v), n)
 function anyAtCount(v: number, n: number): number {
-  return anyOf(integrandShare * lawAbove(1, 2 ** v), n);
+  return anyOf((STATE[I_SHARE] as number) * lawAbove(1, 2 ** v), n);
 }
 
 // The fitted step of g: its level v½ (g = A/2) and width σ_v = A·φ(0)/|g'(v½)|, A = anyOf(share, n) (above → 1 far
@@ -1547,7 +1569,7 @@ function anyAtCount(v: number, n: number): number {
 // a double stored in one is boxed at every store, garbage on the hot path)
 const FIT = new Float64Array(4);
 function fitStepOf(n: number): void {
-  const share = integrandShare;
+  const share = (STATE[I_SHARE] as number);
   const limit = anyOf(share, n);
   FIT[0] = limit;
   // above(1, 2^v½) = E with 1 − (1 − share·E)^n = A/2
@@ -1560,7 +1582,7 @@ function fitStepOf(n: number): void {
     FIT[1] = Math.log2(a);
     slope = 2 * normalPdf(a) * a * LN2;
   } else if (integrandLaw === LOG_NORMAL) {
-    const s = integrandSpread;
+    const s = (STATE[I_SPREAD] as number);
     const y = roughUpperQuantile(half);
     FIT[1] = s * y - s * s * LN2;
     slope = normalPdf(y) / s;
@@ -1609,9 +1631,9 @@ let row3: Float64Array = STEP_UP;
 // the slot of the row keyed by `countKey` (the count, or −k for grid row k), made with count n if new
 function rowSlot(countKey: number, n: number): number {
   REMAINDER_KEY[0] = integrandLaw;
-  REMAINDER_KEY[1] = integrandShare;
+  REMAINDER_KEY[1] = (STATE[I_SHARE] as number);
   REMAINDER_KEY[2] = countKey;
-  REMAINDER_KEY[3] = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
+  REMAINDER_KEY[3] = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
   let slot = hashSlot(REMAINDER_KEY_WORDS, REMAINDER_SLOTS);
   for (;;) {
     const at = slot * 4;
@@ -1654,11 +1676,90 @@ function rowSlot(countKey: number, n: number): number {
 }
 // pick the rows of the current law and count (fitStep set)
 function remainderRow(): void {
-  const n = integrandCount;
-  const elementSpread = integrandLaw === LOG_NORMAL ? integrandSpread : 0;
-  if (COUNT_KEY[0] === integrandLaw && COUNT_KEY[1] === integrandShare && COUNT_KEY[2] === n && COUNT_KEY[3] === elementSpread && countRows === remainderCount + remainderClears * REMAINDER_SLOTS) return;
+  const n = (STATE[I_COUNT] as number);
+  const elementSpread = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  const state = remainderCount + remainderClears * REMAINDER_SLOTS;
+  if (COUNT_KEY[0] === integrandLaw && COUNT_KEY[1] === (STATE[I_SHARE] as number) && COUNT_KEY[2] === n && COUNT_KEY[3] === elementSpread && countRows === state) return;
+  // the rows this count picked before, while no row has been made or cleared since (anyRule found its slot just now)
+  const slot = currentCountSlot();
+  if (COUNTS_STATE[slot] === state && (COUNTS_ROWS[4 * slot] as number) >= 0) {
+    COUNT_KEY[0] = integrandLaw;
+    COUNT_KEY[1] = STATE[I_SHARE] as number;
+    COUNT_KEY[2] = n;
+    COUNT_KEY[3] = elementSpread;
+    rowCount = n >= GRID_COUNT ? 4 : 1;
+    for (let k = 0; k < 4; k++) {
+      ROW_SLOTS[k] = COUNTS_ROWS[4 * slot + k] as number;
+      ROW_WEIGHTS[k] = COUNTS_WEIGHTS[4 * slot + k] as number;
+    }
+    row0 = REMAINDER_ROWS[ROW_SLOTS[0] as number] as Float64Array;
+    row1 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[1] as number] as Float64Array) : row0;
+    row2 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[2] as number] as Float64Array) : row0;
+    row3 = rowCount > 1 ? (REMAINDER_ROWS[ROW_SLOTS[3] as number] as Float64Array) : row0;
+    countRows = state;
+    // the grid rows held now are not the ones GRID_KEY names
+    GRID_KEY[3] = NaN;
+    return;
+  }
+  pickRows(n, elementSpread);
+  COUNTS_STATE[slot] = countRows;
+  for (let k = 0; k < 4; k++) {
+    COUNTS_ROWS[4 * slot + k] = k < rowCount ? (ROW_SLOTS[k] as number) : (ROW_SLOTS[0] as number);
+    COUNTS_WEIGHTS[4 * slot + k] = k < rowCount ? (ROW_WEIGHTS[k] as number) : 0;
+  }
+}
+// Per element count a check meets (with the law, share and element spread): its fitted step and the remainder rows it
+// picked with their weights, and the remainder table's state then (the rows are valid while no row has been made or
+// cleared since). Direct-mapped on the key's bits: a collision replaces the older count. The same fit and the same rows
+// as computed afresh, so the same sums bit for bit.
+const COUNT_SLOTS = 256;
+const COUNTS_KEY = new Float64Array(4 * COUNT_SLOTS).fill(NaN);
+const COUNTS_FIT = new Float64Array(3 * COUNT_SLOTS).fill(NaN);
+const COUNTS_ROWS = new Int32Array(4 * COUNT_SLOTS).fill(-1);
+const COUNTS_WEIGHTS = new Float64Array(4 * COUNT_SLOTS);
+const COUNTS_STATE = new Float64Array(COUNT_SLOTS).fill(NaN);
+const COUNTS_PROBE = new Float64Array(4);
+const COUNTS_PROBE_WORDS = new Int32Array(COUNTS_PROBE.buffer);
+let lastCountSlot = 0;
+// the cache slot of the current law and count, emptied for it if another count held it
+function countSlot(): number {
+  COUNTS_PROBE[0] = integrandLaw;
+  COUNTS_PROBE[1] = STATE[I_SHARE] as number;
+  COUNTS_PROBE[2] = STATE[I_COUNT] as number;
+  COUNTS_PROBE[3] = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  const slot = hashSlot(COUNTS_PROBE_WORDS, COUNT_SLOTS);
+  const at = 4 * slot;
+  if (
+    COUNTS_KEY[at] !== COUNTS_PROBE[0] ||
+    COUNTS_KEY[at + 1] !== COUNTS_PROBE[1] ||
+    COUNTS_KEY[at + 2] !== COUNTS_PROBE[2] ||
+    COUNTS_KEY[at + 3] !== COUNTS_PROBE[3]
+  ) {
+    COUNTS_KEY.set(COUNTS_PROBE, at);
+    COUNTS_FIT[3 * slot] = NaN;
+    COUNTS_ROWS[at] = -1;
+    COUNTS_STATE[slot] = NaN;
+  }
+  lastCountSlot = slot;
+  return slot;
+}
+// countSlot's slot, unless the last one found was another count's
+function currentCountSlot(): number {
+  const at = 4 * lastCountSlot;
+  if (
+    COUNTS_KEY[at] === integrandLaw &&
+    COUNTS_KEY[at + 1] === STATE[I_SHARE] &&
+    COUNTS_KEY[at + 2] === STATE[I_COUNT] &&
+    COUNTS_KEY[at + 3] === (integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0)
+  ) {
+    return lastCountSlot;
+  }
+  return countSlot();
+}
+// pick the rows of the current law and count afresh
+function pickRows(n: number, elementSpread: number): void {
   COUNT_KEY[0] = integrandLaw;
-  COUNT_KEY[1] = integrandShare;
+  COUNT_KEY[1] = (STATE[I_SHARE] as number);
   COUNT_KEY[2] = n;
   COUNT_KEY[3] = elementSpread;
   if (n >= GRID_COUNT) {
@@ -1675,7 +1776,7 @@ function remainderRow(): void {
     const same =
       rowCount === 4 &&
       GRID_KEY[0] === integrandLaw &&
-      GRID_KEY[1] === integrandShare &&
+      GRID_KEY[1] === (STATE[I_SHARE] as number) &&
       GRID_KEY[2] === elementSpread &&
       GRID_KEY[3] === first &&
       gridRows === state;
@@ -1691,7 +1792,7 @@ function remainderRow(): void {
     }
     rowCount = 4;
     GRID_KEY[0] = integrandLaw;
-    GRID_KEY[1] = integrandShare;
+    GRID_KEY[1] = (STATE[I_SHARE] as number);
     GRID_KEY[2] = elementSpread;
     GRID_KEY[3] = first;
     gridRows = remainderCount + remainderClears * REMAINDER_SLOTS;
@@ -1819,8 +1920,8 @@ function stepLevel(s: number, q: number): number {
  */
 export function stepLawMoments(profile: MagnitudeProfile): [number, number, number, number] | null {
   setLawIntegrand(profile, ANY_ABOVE, 1, false);
-  if (integrandLaw === CONSTANT || !(integrandCount > 0)) return null;
-  fitStepOf(integrandCount);
+  if (integrandLaw === CONSTANT || !((STATE[I_COUNT] as number) > 0)) return null;
+  fitStepOf((STATE[I_COUNT] as number));
   if (!((FIT[2] as number) > 0)) return null;
   remainderRow();
   stepMoments();
@@ -1907,7 +2008,7 @@ function stepSum(x: number, s: number, slope: boolean): number {
   high = Math.min(high + 1, (ANY_TABLE - 1) / stride);
   let totalDerivative = step * derivative;
   let lastChange = 1;
-  const geometric = integrandCount >= GEOMETRIC_COUNT && width < GEOMETRIC_WIDTH * s;
+  const geometric = (STATE[I_COUNT] as number) >= GEOMETRIC_COUNT && width < GEOMETRIC_WIDTH * s;
   while (stride > 1) {
     let middles = 0;
     let middleDerivative = 0;
@@ -1942,7 +2043,7 @@ function stepSum(x: number, s: number, slope: boolean): number {
 // of Takahasi & Mori 1974, from memory), τ the scale on which g rises or φ falls, halving the step as above.
 function uniformAnyAbove(x: number, s: number, limit: number): number {
   const kink = (x - Math.log2(SQRT3)) / s;
-  const rise = integrandCount * integrandShare * s * LN2;
+  const rise = (STATE[I_COUNT] as number) * (STATE[I_SHARE] as number) * s * LN2;
   const tau = Math.min(1, 1 / Math.max(1, kink), rise > 0 ? 1 / rise : 1);
   // the walk starts where w reaches the draws' centre when the kink lies below it
   const origin = kink < 0 ? Math.log(1 - kink / tau) : 0;
@@ -1981,7 +2082,7 @@ function uniformTerm(xi: number, x: number, s: number, kink: number, tau: number
   const decay = Math.exp(-xi);
   const w = tau * Math.exp(xi - decay);
   const z = kink + w;
-  return w * (1 + decay) * normalPdf(z) * anyAtCount(x - s * z, integrandCount);
+  return w * (1 + decay) * normalPdf(z) * anyAtCount(x - s * z, (STATE[I_COUNT] as number));
 }
 
 // Which rule sums the current any-above integrand at spread s: STEP_RULE (fitStep and remainderRow then set),
@@ -1993,12 +2094,22 @@ const UNIFORM_RULE = 3;
 function anyRule(s: number): number {
   if (integrandLaw === CONSTANT) {
     // no step to fit: the limit is every element's own, set here for each caller (a stale fit's limit was read before)
-    FIT[0] = anyOf(integrandShare, integrandCount);
+    FIT[0] = anyOf((STATE[I_SHARE] as number), (STATE[I_COUNT] as number));
     FIT[1] = 0;
     FIT[2] = 0;
     return CLOSED_RULE;
   }
-  fitStepOf(integrandCount);
+  const slot = countSlot();
+  if (COUNTS_FIT[3 * slot] === COUNTS_FIT[3 * slot]) {
+    FIT[0] = COUNTS_FIT[3 * slot] as number;
+    FIT[1] = COUNTS_FIT[3 * slot + 1] as number;
+    FIT[2] = COUNTS_FIT[3 * slot + 2] as number;
+  } else {
+    fitStepOf(STATE[I_COUNT] as number);
+    COUNTS_FIT[3 * slot] = FIT[0] as number;
+    COUNTS_FIT[3 * slot + 1] = FIT[1] as number;
+    COUNTS_FIT[3 * slot + 2] = FIT[2] as number;
+  }
   if (integrandLaw === UNIFORM) return UNIFORM_RULE;
   const width = FIT[2] as number;
   if (!(width > 0) || !(width < STEP_WIDTH_LIMIT * s)) return DRAW_RULE;
@@ -2025,7 +2136,7 @@ function anyAboveSum(x: number, s: number, rule: number): number {
 }
 // the draw rule's sum at rms 1, t = 2^x
 function drawAt(x: number, s: number): number {
-  integrandT = 2 ** x;
+  STATE[I_T] = 2 ** x;
   return drawSum(1, s);
 }
 
@@ -2107,22 +2218,62 @@ export function gaussianLevelsTabled(profile: MagnitudeProfile): boolean {
   );
 }
 
+// The count's interpolation in ln n, per spread row: COLUMN_VALUES[slot][a] = Σ_k N_k·level(a, first + k), the inner sum
+// of levelTableValue for row a (NaN: not yet summed). Every tensor of one count (and share and p) at any spread reads
+// the same 8 sums, so each is taken once: a look-up reads 8 numbers instead of 48 from 8 rows scattered over the
+// table. The same sums in the same order as before, so the same levels bit for bit. Direct-mapped on (share, p, count):
+// a collision replaces the older column.
+const COLUMN_SLOTS = 64;
+const COLUMN_KEYS = new Float64Array(COLUMN_SLOTS * 2).fill(NaN);
+const COLUMN_VALUES: Float64Array[] = [];
+const COLUMN_FIRST = new Float64Array(COLUMN_SLOTS);
+// spread rows a of the level tables (TABLE_MAX_SPREAD/ROW_STEP and the polynomial's points past it)
+const COLUMN_ROWS = Math.ceil(TABLE_MAX_SPREAD / ROW_STEP) + SPREAD_POINTS + 1;
+// the last table's key and rows (the calls of one check ask for one or two levels p)
+const LAST_LEVEL_KEY = new Float64Array(1).fill(NaN);
+let lastLevelRows: (Window | undefined)[] = [];
 function levelTableValue(spread: number, p: number): number {
-  const share = integrandShare;
-  const count = integrandCount;
+  const share = (STATE[I_SHARE] as number);
+  const count = (STATE[I_COUNT] as number);
   const key = share === 1 ? p : -p;
-  let rows = LEVEL_TABLES.get(key);
-  if (rows === undefined) {
-    rows = [];
-    LEVEL_TABLES.set(key, rows);
+  let rows = lastLevelRows;
+  if (key !== LAST_LEVEL_KEY[0]) {
+    let found = LEVEL_TABLES.get(key);
+    if (found === undefined) {
+      found = [];
+      LEVEL_TABLES.set(key, found);
+    }
+    rows = found;
+    lastLevelRows = found;
+    LAST_LEVEL_KEY[0] = key;
   }
   const v = spread / ROW_STEP;
   const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
-  const u = Math.log(count) * GRID_PER_LN;
-  const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
-  // the lowest count point is GRID_COUNT's row and below (ln 64·8 ≈ 33.3): a count point at or below 30 is left to the search
-  if (first < 30) return NaN;
-  lagrangeWeights(N_WEIGHTS, X_SCALE, u - first);
+  if (!(firstRow >= 0 && firstRow + SPREAD_POINTS <= COLUMN_ROWS)) return NaN;
+  BITS[0] = key;
+  let hash = Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b);
+  BITS[0] = count;
+  hash = Math.imul(hash ^ (BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x27d4eb2f), 0x165667b1);
+  const slot = (hash >>> 20) & (COLUMN_SLOTS - 1);
+  let column = COLUMN_VALUES[slot];
+  if (COLUMN_KEYS[2 * slot] !== key || COLUMN_KEYS[2 * slot + 1] !== count || column === undefined) {
+    const u = Math.log(count) * GRID_PER_LN;
+    const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
+    // the lowest count point is GRID_COUNT's row and below (ln 64·8 ≈ 33.3): a count point at or below 30 is left to the search
+    if (first < 30) return NaN;
+    if (column === undefined) {
+      column = new Float64Array(COLUMN_ROWS + TABLE_POINTS);
+      COLUMN_VALUES[slot] = column;
+    }
+    column.fill(NaN, 0, COLUMN_ROWS);
+    // the count's weights in ln n kept after the rows' sums
+    lagrangeWeights(N_WEIGHTS, X_SCALE, u - first);
+    column.set(N_WEIGHTS, COLUMN_ROWS);
+    COLUMN_FIRST[slot] = first;
+    COLUMN_KEYS[2 * slot] = key;
+    COLUMN_KEYS[2 * slot + 1] = count;
+  }
+  const first = COLUMN_FIRST[slot] as number;
   const s = v - firstRow;
   if (s !== S_WEIGHTS_AT[0]) {
     lagrangeWeights(S_WEIGHTS, S_SCALE, s);
@@ -2131,24 +2282,34 @@ function levelTableValue(spread: number, p: number): number {
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) {
     const a = firstRow + r;
-    const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
-    const at = first - row.base;
-    let sum = 0;
-    for (let k = 0; k < TABLE_POINTS; k++) {
-      let level = row.values[at + k] as number;
-      if (level !== level) {
-        integrandCount = Math.exp((first + k) / GRID_PER_LN);
-        row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
-        integrandCount = count;
-        // read back from the table: a level taken from the call's return value made the compiler keep every level of
-        // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
-        level = row.values[at + k] as number;
-      }
-      sum += (N_WEIGHTS[k] as number) * level;
+    let sum = column[a] as number;
+    if (sum !== sum) {
+      sum = columnSum(rows, column, a, first, count, p);
+      column[a] = sum;
     }
     result += (S_WEIGHTS[r] as number) * sum;
   }
   return result;
+}
+// Σ_k N_k·level(a, first + k) of row a, the count's weights N_k kept in the column past its rows; the levels not yet in
+// the table are found by the search (the integrand's count set to each count point meanwhile)
+function columnSum(rows: (Window | undefined)[], column: Float64Array, a: number, first: number, count: number, p: number): number {
+  const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
+  const at = first - row.base;
+  let sum = 0;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    let level = row.values[at + k] as number;
+    if (level !== level) {
+      STATE[I_COUNT] = Math.exp((first + k) / GRID_PER_LN);
+      row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
+      STATE[I_COUNT] = count;
+      // read back from the table: a level taken from the call's return value made the compiler keep every level of
+      // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
+      level = row.values[at + k] as number;
+    }
+    sum += (column[COLUMN_ROWS + k] as number) * level;
+  }
+  return sum;
 }
 
 // Tables of the Gaussian "below" levels (the predicted low magnitude): the level where the share below is p depends on
@@ -2163,11 +2324,21 @@ const LOW_MIN_SPREAD = 0.5;
 const LOW_MAX_SPREAD = TABLE_MAX_SPREAD - 0.5;
 const LOW_TABLES = new Map<number, Window>();
 const LOW_WEIGHTS = new Float64Array(SPREAD_POINTS);
+// the weights LOW_WEIGHTS were last taken at (NaN: never), and the last p's window (one or two p a check)
+const LOW_WEIGHTS_AT = new Float64Array(1).fill(NaN);
+const LAST_LOW_P = new Float64Array(1).fill(NaN);
+let lastLowRow: Window = emptyWindow();
 function lowTableValue(spread: number, p: number): number {
-  let row = LOW_TABLES.get(p);
-  if (row === undefined) {
-    row = emptyWindow();
-    LOW_TABLES.set(p, row);
+  let row = lastLowRow;
+  if (p !== LAST_LOW_P[0]) {
+    let found = LOW_TABLES.get(p);
+    if (found === undefined) {
+      found = emptyWindow();
+      LOW_TABLES.set(p, found);
+    }
+    row = found;
+    lastLowRow = found;
+    LAST_LOW_P[0] = p;
   }
   const v = spread / ROW_STEP;
   const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
@@ -2176,7 +2347,11 @@ function lowTableValue(spread: number, p: number): number {
   for (let r = 0; r < SPREAD_POINTS; r++) {
     if (row.values[at + r] !== row.values[at + r]) row.values[at + r] = rowCrossing((firstRow + r) * ROW_STEP, p);
   }
-  lagrangeWeights(LOW_WEIGHTS, S_SCALE, v - firstRow);
+  // a profile's statistics read its level above at the same spread just before: the same weights
+  if (v - firstRow !== LOW_WEIGHTS_AT[0]) {
+    lagrangeWeights(LOW_WEIGHTS, S_SCALE, v - firstRow);
+    LOW_WEIGHTS_AT[0] = v - firstRow;
+  }
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) result += (LOW_WEIGHTS[r] as number) * (row.values[at + r] as number);
   return result;

@@ -147,7 +147,8 @@ const DRAW_PROBE_WORDS = new Int32Array(DRAW_PROBE.buffer);
 // lawOverDraws(profile, MEASURES[measure], t, measure === ANY_ABOVE_POSITIVE), through the table
 function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): number {
   const shape = shapeCode(profile.shape);
-  if (shape < 0) return lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
+  // without a spread the integral is one evaluation of the law, cheaper than the table's look-up
+  if (shape < 0 || !(profile.log2Spread > 0)) return lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
   const bound = profile.bound;
   const elementSpread = profile.elementLog2Spread;
   // which optional fields are present goes with the measure into the first key
