@@ -10,6 +10,7 @@ import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
+import { settledAnyAbove, settledEnergyBelow } from "./settle.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -200,13 +201,18 @@ export function evaluateHazard(
   // the training setup's epsilon site has no profile of its own at the end: its count sums over the network's
   // weight gradients at each side of the horizon
   const network = site.kind === "optimizer-constant" && origin === "training setup" && context.weightGradients !== undefined;
-  draftsFor(site, site.input, site.output, context, start, network ? "start" : null);
   const siteEnd = site.end;
   const ended = siteEnd !== undefined || network;
-  if (siteEnd !== undefined) {
-    draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end, null);
-  } else if (network) {
-    draftsFor(site, site.input, site.output, context, end, "end");
+  if (siteEnd !== undefined && site.kind === "gradient-sum") {
+    // both sides at once: only the worse of each is reported, and a far smaller one need not be integrated
+    gradientSumSides(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, start, end);
+  } else {
+    draftsFor(site, site.input, site.output, context, start, network ? "start" : null);
+    if (siteEnd !== undefined) {
+      draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end, null);
+    } else if (network) {
+      draftsFor(site, site.input, site.output, context, end, "end");
+    }
   }
   const evaluations: HazardEvaluation[] = [];
   const findings: Finding[] = [];
@@ -221,7 +227,8 @@ export function evaluateHazard(
     const worse = endWorse ? second : first;
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const sentence = flat(sentenceOf(worse, site, context, ended ? at : null));
+    const words = sentenceOf(worse, site, context, ended ? at : null);
+    const sentence = pieced(worse.wording) ? words : flat(words);
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
     if (topInput !== undefined && input === site.input) {
@@ -330,11 +337,22 @@ function softmaxTerm(site: HazardSite): string {
   return site.layer === "loss" ? "class" : "key";
 }
 
+// Whether a wording's sentence is the site's name between words its memo keeps (Words): left as those few pieces,
+// which every sentence of the wording shares, rather than copied into one string of its own (see words.ts flat:
+// the pieces a sentence would keep alive are its site's name and a number, no more than the copy would be)
+function pieced(wording: number): boolean {
+  return wording === ACCUMULATION_ERROR || wording === ACCUMULATION_OVERFLOW || wording === GRADIENT_SUM_OVERFLOW || wording === GRADIENT_SUM_ERROR || wording === GRADIENT_SUM_FLUSH;
+}
+
+// the words naming a side of the horizon, made once (the sentences' memos compare them)
+const AT_START = ` ${when("start")}`;
+const AT_END = ` ${when("end")}`;
+
 // The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
 // of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
 // and one after the weights have grown call for different remedies)
 function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null): string {
-  const side = at === null ? "" : ` ${when(at)}`;
+  const side = at === null ? "" : at === "start" ? AT_START : AT_END;
   const format = draft.format;
   const value = draft.value;
   const verdict = draft.verdict;
@@ -361,22 +379,27 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `(${verdictWord(verdict)}).`
       );
     }
-    case ACCUMULATION_ERROR:
-      return (
-        `${site.layer} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about ` +
-        `√n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`
-      );
+    case ACCUMULATION_ERROR: {
+      const terms = Math.max(1, site.terms);
+      const tail = ACCUMULATION_ERROR_TAIL;
+      if (!tail.holds(format, verdict, "", terms, value, 0)) {
+        tail.keep(format, verdict, "", terms, value, 0, ` accumulates ${terms} terms in ${format}: relative rounding error about √n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`);
+      }
+      return site.layer + tail.text;
+    }
     case LOSS_SUM_ERROR: {
       const said =
         `${site.terms > 1 ? `The loss sums its ${site.terms} terms` : `The loss averages ${draft.extra} terms, summed`} in ${format}, the accumulate format: relative rounding error at least ` +
         `√n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
       return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`).`;
     }
-    case ACCUMULATION_OVERFLOW:
-      return (
-        `The partial sums of ${site.layer} reach the ${format} overflow threshold with probability ` +
-        `${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
-      );
+    case ACCUMULATION_OVERFLOW: {
+      const tail = ACCUMULATION_OVERFLOW_TAIL;
+      if (!tail.holds(format, verdict, side, value, 0, 0)) {
+        tail.keep(format, verdict, side, value, 0, 0, ` reach the ${format} overflow threshold with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`);
+      }
+      return "The partial sums of " + site.layer + tail.text;
+    }
     case LOSS_VALUE: {
       const critical = draft.criticalLevel as number;
       const [digits, predicted] = distinctNumbers(critical, draft.extra);
@@ -396,33 +419,40 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
     }
-    case GRADIENT_SUM_OVERFLOW:
-      return (
-        `The sum of ${Math.max(1, site.terms)} gradient contributions of ${gradientOf(site)} (rms ${plainNumber(draft.extra)}${context.lossScale === 1 ? "" : " after the loss scale"}) ` +
-        `overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
-      );
+    case GRADIENT_SUM_OVERFLOW: {
+      const terms = Math.max(1, site.terms);
+      const head = GRADIENT_SUM_OVERFLOW_HEAD;
+      if (!head.holds("", "", "", terms, 0, 0)) head.keep("", "", "", terms, 0, 0, `The sum of ${terms} gradient contributions of `);
+      const tail = GRADIENT_SUM_OVERFLOW_TAIL;
+      const lossScale = context.lossScale;
+      if (!tail.holds(format, verdict, side, value, lossScale, 0)) {
+        tail.keep(format, verdict, side, value, lossScale, 0,
+          `${lossScale === 1 ? "" : " after the loss scale"}) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`);
+      }
+      return head.text + gradientOf(site) + " (rms " + plainNumber(draft.extra) + tail.text;
+    }
     case GRADIENT_SUM_ERROR: {
       const terms = Math.max(1, site.terms);
       const sums = context.gradientSums;
       const which = sums.format === context.gradients.format ? "the gradient format" : "the plan's gradient-sums format";
-      const said =
-        `Summed in ${format}, ${which}, the ${terms} gradient contributions of ${gradientOf(site)} carry a relative ` +
-        `rounding error of about √n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
-      if (verdict === "fits") return `${said}.`;
-      // the most contributions whose √n·u stays within the at-risk threshold: n ≤ (threshold/u)²
-      const most = Math.floor((context.thresholds.accumulationAtRisk / sums.unitRoundoff) ** 2);
-      const remedies = [
-        // a binary32 sum buffer: the gradients themselves stay in their format
-        sums.unitRoundoff > FORMATS.binary32.unitRoundoff ? "sum them in binary32 (`gradient-sums: binary32` in the plan)" : "",
-        most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
-      ].filter((x) => x !== "");
-      return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
+      const head = GRADIENT_SUM_ERROR_HEAD;
+      if (!head.holds(format, which, "", terms, 0, 0)) head.keep(format, which, "", terms, 0, 0, `Summed in ${format}, ${which}, the ${terms} gradient contributions of `);
+      const tail = GRADIENT_SUM_ERROR_TAIL;
+      const atRisk = context.thresholds.accumulationAtRisk;
+      if (!tail.holds("", verdict, "", value, terms, sums.unitRoundoff) || tail.extra !== atRisk) {
+        tail.keep("", verdict, "", value, terms, sums.unitRoundoff, gradientSumErrorTail(value, verdict, terms, sums.unitRoundoff, atRisk));
+        tail.extra = atRisk;
+      }
+      return head.text + gradientOf(site) + tail.text;
     }
-    case GRADIENT_SUM_FLUSH:
-      return (
-        `If each worker divides the gradients of ${gradientOf(site)} by ${context.workers} before the sum, ` +
-        `${sharePercent(value)} more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`
-      );
+    case GRADIENT_SUM_FLUSH: {
+      const workers = context.workers;
+      const middle = GRADIENT_SUM_FLUSH_MIDDLE;
+      if (!middle.holds("", "", "", workers, 0, 0)) middle.keep("", "", "", workers, 0, 0, ` by ${workers} before the sum, `);
+      const tail = GRADIENT_SUM_FLUSH_TAIL;
+      if (!tail.holds(format, verdict, side, 0, 0, 0)) tail.keep(format, verdict, side, 0, 0, 0, ` more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`);
+      return "If each worker divides the gradients of " + gradientOf(site) + middle.text + sharePercent(value) + tail.text;
+    }
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
     case EPSILON_FLUSHED:
@@ -442,6 +472,62 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       );
   }
 }
+
+// The words of a gradient sum's rounding error after the name of its gradient: √n·u, the verdict, and the remedies
+// where it does not fit
+function gradientSumErrorTail(value: number, verdict: Verdict, terms: number, unitRoundoff: number, atRisk: number): string {
+  const said = ` carry a relative rounding error of about √n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
+  if (verdict === "fits") return `${said}.`;
+  // the most contributions whose √n·u stays within the at-risk threshold: n ≤ (threshold/u)²
+  const most = Math.floor((atRisk / unitRoundoff) ** 2);
+  const remedies = [
+    // a binary32 sum buffer: the gradients themselves stay in their format
+    unitRoundoff > FORMATS.binary32.unitRoundoff ? "sum them in binary32 (`gradient-sums: binary32` in the plan)" : "",
+    most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
+  ].filter((x) => x !== "");
+  return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
+}
+
+/**
+ * The words of a sentence that do not name its site, kept for the next sentence of the same wording: the sites of a
+ * network follow each other kind by kind, and most of them share these words (the same format, verdict, side and often
+ * number), so their sentences are the site's name between strings made once (fewer pieces to make and flatten). Keyed
+ * by everything the words are made from, compared exactly (a NaN key never holds).
+ */
+class Words {
+  private a = "";
+  private b = "";
+  private c = "";
+  private x = Number.NaN;
+  private y = Number.NaN;
+  private z = Number.NaN;
+  /** one more number some words depend on, compared by the caller */
+  extra = Number.NaN;
+  text = "";
+
+  holds(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
+    return this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z;
+  }
+
+  keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    this.a = a;
+    this.b = b;
+    this.c = c;
+    this.x = x;
+    this.y = y;
+    this.z = z;
+    this.text = flat(text);
+  }
+}
+
+const ACCUMULATION_ERROR_TAIL = new Words();
+const ACCUMULATION_OVERFLOW_TAIL = new Words();
+const GRADIENT_SUM_OVERFLOW_HEAD = new Words();
+const GRADIENT_SUM_OVERFLOW_TAIL = new Words();
+const GRADIENT_SUM_ERROR_HEAD = new Words();
+const GRADIENT_SUM_ERROR_TAIL = new Words();
+const GRADIENT_SUM_FLUSH_MIDDLE = new Words();
+const GRADIENT_SUM_FLUSH_TAIL = new Words();
 
 // a layer's weight and bias have a gradient-sum site each, which the layer's name alone would not tell apart
 function gradientOf(site: HazardSite): string {
@@ -663,13 +749,7 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
   const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
   const block = scaling === "block" ? blockScaledRiskCached(format) : null;
   const summed = output !== undefined ? scaledProfile(output, context.lossScale) : scaledProfile(input, context.lossScale * terms);
-  // the level the summed gradients overflow from, in their own units (before any scale factor)
-  const level =
-    block !== null
-      ? block.scaleClampLevel
-      : scaling === "tensor"
-        ? limits.overflowLevel * 2 ** -perTensorScaleLog2(profileStatistics(summed, t).max, limits.maxFinite)
-        : limits.overflowLevel;
+  const level = sumOverflowLevel(summed, block, scaling, limits, t);
   const overflow = probabilityAnyAbove(summed, level);
   putGraded(list, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
     overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates), t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
@@ -677,13 +757,118 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
     const scaled = scaledProfile(input, context.lossScale);
     const divided = scaledProfile(scaled, 1 / context.workers);
     const dividedLevel = flushLevel(divided, block, scaling, limits, t);
-    const lost = Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled, block, scaling, limits, t)));
+    const lost = lostEnergy(scaled, divided, dividedLevel, block, scaling, limits, t);
     putGraded(list, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   putGraded(list, limits, "gradientSums", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+}
+
+// A side's number the settle bounds put below SETTLED (src/risk/settle.ts) is taken as at most this, a margin of 10^3
+// over SETTLED for the rule that computes it (within a factor 2 of the draw integral on any segment, as settle.ts
+// takes it): the other side's number, computed, is kept without computing this one only when it is larger still.
+const SETTLED_SIDE = 1e-10;
+
+/**
+ * {@link gradientSum} at the start and the end of the horizon at once, into `start` and `end` (the same drafts, in the
+ * same order). Only the worse side of each evaluation is reported (evaluateHazard), so a side whose overflow
+ * probability or flushed share the closed-form bounds of src/risk/settle.ts put below SETTLED_SIDE is not integrated
+ * where the other side's number, integrated, is above it: that side's draft then holds SETTLED_SIDE, a bound on its
+ * number, which the choice of the worse side reads as it would read the number (every verdict rises with the number).
+ */
+function gradientSumSides(
+  site: HazardSite,
+  endInput: MagnitudeProfile,
+  endOutput: MagnitudeProfile | undefined,
+  context: HazardContext,
+  start: DraftList,
+  end: DraftList,
+): void {
+  const limits = context.gradientSums;
+  const t = context.thresholds;
+  const terms = Math.max(1, site.terms);
+  const format = FORMATS[limits.format];
+  const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
+  const block = scaling === "block" ? blockScaledRiskCached(format) : null;
+  const lossScale = context.lossScale;
+  const startOutput = site.output;
+  const startSummed = startOutput !== undefined ? scaledProfile(startOutput, lossScale) : scaledProfile(site.input, lossScale * terms);
+  const endSummed = endOutput !== undefined ? scaledProfile(endOutput, lossScale) : scaledProfile(endInput, lossScale * terms);
+  const startLevel = sumOverflowLevel(startSummed, block, scaling, limits, t);
+  const endLevel = sumOverflowLevel(endSummed, block, scaling, limits, t);
+  let startOverflow = Number.NaN;
+  let endOverflow = Number.NaN;
+  if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
+    endOverflow = probabilityAnyAbove(endSummed, endLevel);
+    startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
+  } else {
+    startOverflow = probabilityAnyAbove(startSummed, startLevel);
+    endOverflow =
+      startOverflow > SETTLED_SIDE && settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0
+        ? SETTLED_SIDE
+        : probabilityAnyAbove(endSummed, endLevel);
+  }
+  const overflowAtRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
+    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
+  putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endOverflow, endLevel / lossScale,
+    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endSummed.rms, false);
+  if (context.workerGradients === "average" && context.workers > 1) {
+    const workers = context.workers;
+    const startScaled = scaledProfile(site.input, lossScale);
+    const startDivided = scaledProfile(startScaled, 1 / workers);
+    const startLevelDivided = flushLevel(startDivided, block, scaling, limits, t);
+    const endScaled = scaledProfile(endInput, lossScale);
+    const endDivided = scaledProfile(endScaled, 1 / workers);
+    const endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
+    let startLost = Number.NaN;
+    let endLost = Number.NaN;
+    // the share lost is at most the divided gradients' share below the level
+    if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
+      endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+      startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+    } else {
+      startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+      endLost =
+        startLost > SETTLED_SIDE && settledEnergyBelow(endDivided, endLevelDivided) === 0
+          ? SETTLED_SIDE
+          : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+    }
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLost, startLevelDivided * workers,
+      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLost, endLevelDivided * workers,
+      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+  }
+  const error = sumRoundingError(terms, limits.unitRoundoff);
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
+    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
+    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+}
+
+// the level summed gradients overflow from, in their own units (before any scale factor), as gradientSum takes it
+function sumOverflowLevel(summed: MagnitudeProfile, block: BlockScaledRisk | null, scaling: "none" | "tensor" | "block", limits: RangeLimits, t: RiskThresholds): number {
+  return block !== null
+    ? block.scaleClampLevel
+    : scaling === "tensor"
+      ? limits.overflowLevel * 2 ** -perTensorScaleLog2(profileStatistics(summed, t).max, limits.maxFinite)
+      : limits.overflowLevel;
+}
+
+// the squared-norm share a division by the worker count flushes beyond what the undivided gradients lose, as gradientSum
+// takes it
+function lostEnergy(
+  scaled: MagnitudeProfile,
+  divided: MagnitudeProfile,
+  dividedLevel: number,
+  block: BlockScaledRisk | null,
+  scaling: "none" | "tensor" | "block",
+  limits: RangeLimits,
+  t: RiskThresholds,
+): number {
+  return Math.max(0, energyBelow(divided, dividedLevel) - energyBelow(scaled, flushLevel(scaled, block, scaling, limits, t)));
 }
 
 // The flush level in a gradient profile's own units: the bound, moved by the profile's own per-tensor scale; under block

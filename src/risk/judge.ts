@@ -335,13 +335,7 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
   const training = trainingSites(spec, prediction, allWeightGradients, weightGradients);
   const contexts = hazardContexts(spec, settings, thresholds, weightGradients);
-  const hazards: HazardCheck[] = [];
-  for (let i = 0; i < prediction.hazards.length; i++) {
-    hazards.push(judgeSite(prediction.hazards[i] as HazardSite, "prediction", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
-  }
-  for (let i = 0; i < training.length; i++) {
-    hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale.value, thresholds, weightGradients));
-  }
+  const hazards = judgeSites(prediction.hazards, training, settings, contexts, spec, lossScale.value, thresholds, weightGradients);
   const formatChecks: FormatCheck[] = [];
   const sums = gradientContributions(spec.training) > 1;
   let verdict: Verdict = "fits";
@@ -650,6 +644,81 @@ function hazardContexts(
     );
   }
   return contexts;
+}
+
+// The checks of the prediction's operation sites, then the training setup's
+function judgeSites(
+  sites: readonly HazardSite[],
+  training: readonly HazardSite[],
+  settings: readonly FormatSetting[],
+  contexts: readonly HazardContext[],
+  spec: NetworkSpec,
+  lossScale: number,
+  thresholds: RiskThresholds,
+  weightGradients: readonly TensorPrediction[],
+): HazardCheck[] {
+  const hazards: HazardCheck[] = [];
+  if (oneContext(settings)) {
+    const context = contexts[0] as HazardContext;
+    for (let i = 0; i < sites.length; i++) hazards.push(judgeSiteOnce(sites[i] as HazardSite, "prediction", settings, context));
+    for (let i = 0; i < training.length; i++) hazards.push(judgeSiteOnce(training[i] as HazardSite, "training setup", settings, context));
+    return hazards;
+  }
+  for (let i = 0; i < sites.length; i++) hazards.push(judgeSite(sites[i] as HazardSite, "prediction", settings, contexts, spec, lossScale, thresholds, weightGradients));
+  for (let i = 0; i < training.length; i++) hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale, thresholds, weightGradients));
+  return hazards;
+}
+
+// whether every setting is judged under the first one's plan (the plan's own formats): one evaluation of a site then
+// serves them all
+function oneContext(settings: readonly FormatSetting[]): boolean {
+  if (settings.length === 0) return false;
+  for (let i = 0; i < settings.length; i++) if ((settings[i] as FormatSetting).contextIndex !== 0) return false;
+  return true;
+}
+
+// One operation site under one plan for every judged format: judgeSite's check without a check per format to gather
+// from. Its evaluations and findings are those of the judged formats, format by format in the settings' order, as
+// judgeSite gathers them: the evaluation's own arrays where they are so already (most sites hold one format, or the
+// activation format before the accumulate one).
+function judgeSiteOnce(site: HazardSite, origin: HazardCheck["origin"], settings: readonly FormatSetting[], context: HazardContext): HazardCheck {
+  const judged = evaluateHazard(site, context, origin);
+  const evaluations = judged.evaluations;
+  const findings = judged.findings;
+  const check: HazardCheck = {
+    kind: site.kind,
+    layer: judged.layer,
+    detail: site.detail,
+    guarded: site.guarded,
+    terms: site.terms,
+    input: judged.input,
+    origin,
+    evaluations: inSettingsOrder(evaluations, settings) ? evaluations : bySettings(evaluations, settings),
+    findings: inSettingsOrder(findings, settings) ? findings : bySettings(findings, settings),
+  };
+  if (site.constant !== undefined) check.constant = site.constant;
+  return check;
+}
+
+// whether each item's format is a judged one, the formats in the settings' order
+function inSettingsOrder(items: readonly { format: FormatName }[], settings: readonly FormatSetting[]): boolean {
+  let k = 0;
+  for (let i = 0; i < items.length; i++) {
+    const format = (items[i] as { format: FormatName }).format;
+    while (k < settings.length && (settings[k] as FormatSetting).format !== format) k++;
+    if (k === settings.length) return false;
+  }
+  return true;
+}
+
+// the items of each judged format, format by format in the settings' order
+function bySettings<T extends { format: FormatName }>(items: readonly T[], settings: readonly FormatSetting[]): T[] {
+  const kept: T[] = [];
+  for (let k = 0; k < settings.length; k++) {
+    const format = (settings[k] as FormatSetting).format;
+    for (let i = 0; i < items.length; i++) if ((items[i] as T).format === format) kept.push(items[i] as T);
+  }
+  return kept;
 }
 
 const SITE_EVALUATIONS: HazardEvaluation[] = [];
