@@ -120,13 +120,7 @@ class Phase {
   readonly hazards: HazardSite[];
   /** sites completed so far by the end pass */
   private sited = 0;
-  /** each layer's batch-first output shape by layer index (start pass): its activation and its gradient share one array */
-  private readonly shapes: (number[] | undefined)[] = [];
-  /**
-   * the weights' profiles made so far, by element count: layers of one width and initialisation give equal numbers, and
-   * one profile serves them all (a profile is a function of its inputs; nothing writes to a prediction's profiles)
-   */
-  private readonly weightProfiles = new Map<number, MagnitudeProfile[]>();
+
   /** each layer's stash by layer index */
   readonly stash: unknown[] = [];
   readonly ctx: OpContext;
@@ -256,10 +250,9 @@ class Phase {
     if (site !== undefined) site.end = { input, output };
   }
 
-  /** A layer's batch-first output shape, one array for its activation and its gradient (none in the end pass). */
+  /** A layer's batch-first output shape (none in the end pass, whose records report no shape). */
   outputShape(layer: GraphLayer): number[] {
-    if (!this.build) return NO_SHAPE;
-    return (this.shapes[layer.index] ??= batchShape(this.graph.batch, layer.output));
+    return this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE;
   }
 
   /** `output`, `profile`, `elements`: a tensor's moments and the profile already made of them, for a site that shares them. */
@@ -299,7 +292,7 @@ class Phase {
       q = value * value;
       zero = value === 0;
     }
-    const profile = this.weightProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", w.elements);
+    const profile = plainProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", 0, w.elements);
     let node: LedgerNode | null = null;
     let id = "";
     if (this.build) {
@@ -307,22 +300,6 @@ class Phase {
       if (this.ledger && profile.rms > 0) node = weightNode(layer.name, w, variance, profile.rms);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight", "weights", w.shape, profile, node);
-  }
-
-  /** A weight's profile: plainProfile's, or the same one made earlier in this pass from the same numbers. */
-  private weightProfile(q: number, zeroFraction: number, shape: "constant" | "uniform" | "gaussian", elements: number): MagnitudeProfile {
-    const made = this.weightProfiles.get(elements);
-    if (made !== undefined) {
-      for (let i = 0; i < made.length; i++) {
-        const p = made[i] as MagnitudeProfile;
-        // meanSquare, zeroFraction and shape are the inputs as given (q ≥ 0, a zero share of 0 or 1)
-        if (p.meanSquare === q && p.zeroFraction === zeroFraction && p.shape === shape) return p;
-      }
-    }
-    const profile = plainProfile(q, zeroFraction, shape, 0, elements);
-    if (made === undefined) this.weightProfiles.set(elements, [profile]);
-    else if (made.length < 8) made.push(profile);
-    return profile;
   }
 
   forward(layers: readonly GraphLayer[], input: Signal, node: LedgerNode | null): { output: Signal; node: LedgerNode | null; resets: boolean } {

@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -152,7 +152,16 @@ export function linearBackward(
   // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
   // E[x xᵀ]'s row: E[x²]² on the diagonal and the covariances of the (fan_in − 1) other features off it (featureCovariance)
   const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * (1 + (inWidth - 1) * (x.featureCovariance ?? 0)) * variance * curvature.rowSquares;
-  let weightSum = gradientSum(ctx.batch, positions, output, x);
+  // the pair correlations of input and gradient, read once for the weight's and the bias's sums (gradientSum and
+  // gradientBetween take the same six)
+  const xSample = sampleCorrelationOf(x);
+  const xPosition = positionCorrelationOf(x);
+  const xCross = crossCorrelationOf(x);
+  const dSample = sampleCorrelationOf(output);
+  const dPosition = positionCorrelationOf(output);
+  const dCross = crossCorrelationOf(output);
+  const xq = x.q * output.q;
+  let weightSum = correlatedSum(ctx.batch, positions, xq, xSample * dSample, xPosition * dPosition, xCross * dCross);
   const bias = maybeWeight(layer, "bias");
   if (output.homogeneousSum !== undefined && inWidth > 0 && variance > 0 && (bias === undefined || ctx.variance(bias) === 0)) {
     // Σ δ·xᵀ holds S·w/‖w‖² along the unit's own weights, S = Σ y·δ (Gradient.homogeneousSum), in place of one of
@@ -165,7 +174,7 @@ export function linearBackward(
       weight: "weight",
       q: weightSum + aligned,
       alignedQ: aligned,
-      betweenQ: gradientBetween(ctx.batch, positions, output, x),
+      betweenQ: betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross),
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
@@ -174,11 +183,11 @@ export function linearBackward(
     },
   ];
   if (bias !== undefined) {
-    const biasSum = gradientSum(ctx.batch, positions, output);
+    const biasSum = correlatedSum(ctx.batch, positions, output.q, dSample, dPosition, dCross);
     weightGradients.push({
       weight: "bias",
       q: biasSum,
-      betweenQ: gradientBetween(ctx.batch, positions, output),
+      betweenQ: betweenBatches(ctx.batch, positions, output.q, dSample, dCross),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,
@@ -200,7 +209,7 @@ export function linearBackward(
     if (before > 0) selfRatio = input.q / before;
   }
   if (output.shared !== undefined) input.shared = gain * output.shared;
-  input.positionCorrelation = positionCorrelationOf(output);
+  input.positionCorrelation = dPosition;
   // weights shared across positions pair two positions of two samples with such pairs of the output gradient
   if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation;
   return {
