@@ -1,6 +1,6 @@
 /** Helpers shared by the analytic rules of several layer families. */
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
-import type { Curvature, Factor, Gradient, Signal, Text } from "./types.js";
+import type { Curvature, Factor, Gradient, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
@@ -15,6 +15,13 @@ export const LINEAR_KAPPA = 2;
 
 /** The factors of a rule in a phase without a ledger (OpContext.ledger false): one shared empty list. */
 export const NO_FACTORS: readonly Factor[] = Object.freeze([]);
+
+// The empty lists of a rule's result, shared (frozen: nothing adds to a result's lists once it is returned), so the rules
+// of the commonest layers make no lists per layer and pass
+export const NO_INNER = Object.freeze([]) as unknown as InnerTensor[];
+export const NO_HAZARDS = Object.freeze([]) as unknown as OpHazard[];
+export const NO_INNER_GRADIENTS = Object.freeze([]) as unknown as InnerGradient[];
+export const NO_WEIGHT_GRADIENTS = Object.freeze([]) as unknown as WeightGradientMoment[];
 
 /** A ledger factor. */
 export function factor(ratio: number, rule: Text, source: string): Factor {

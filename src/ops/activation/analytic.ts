@@ -12,9 +12,9 @@ import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
-import { activationKappa } from "./moments.js";
+import { backwardKappa, forwardKappa } from "./moments.js";
 
 /** What the activation backward rule needs. */
 export interface ActivationStash {
@@ -303,9 +303,8 @@ export function pointwiseForward(
   const derivativeSecond = keep * m.derivativeSecond + input.zeroFraction * d0 * d0;
   const derivativeMean = keep * m.derivativeMean + input.zeroFraction * d0;
   const zeroFraction = (f0 === 0 ? input.zeroFraction : 0) + keep * m.zeroFraction;
-  const kappa = activationKappa(m);
   let logVar = input.logVar;
-  if (input.fresh !== undefined) logVar = Math.max(logVar + (kappa.forward - input.fresh.kappa) / input.fresh.width, 0);
+  if (input.fresh !== undefined) logVar = Math.max(logVar + (forwardKappa(m) - input.fresh.kappa) / input.fresh.width, 0);
   const { shape, bound } = outputShape(name, input);
   // two samples' pre-activations u, v have correlation c = shared/q; E[φ(u)φ(v)] is the shared part of the output
   const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
@@ -313,7 +312,8 @@ export function pointwiseForward(
   const shared = keep * keep * cross.value + (1 - keep * keep) * f0 * f0;
   // two positions of one sample: the same map at their correlation (Poole et al. 2016, correlation map)
   const positionCorrelation = positionCorrelationOf(input);
-  const crossPosition = crossMoments(name, slope, qNonzero, positionCorrelation, m);
+  // (the same moments when the two correlations agree: one sample per position)
+  const crossPosition = positionCorrelation === correlation ? cross : crossMoments(name, slope, qNonzero, positionCorrelation, m);
   const positionShared = keep * keep * crossPosition.value + (1 - keep * keep) * f0 * f0;
   // the fields set below are keys from the start, undefined where absent (as linearOutput's)
   const output: Signal = {
@@ -367,7 +367,7 @@ export function pointwiseForward(
       derivativeSecond,
       derivativeMean,
       derivativeZeroFraction,
-      kappaBackward: kappa.backward,
+      kappaBackward: backwardKappa(m),
       derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0,
       derivativeCrossPosition: keep * keep * crossPosition.derivative + (1 - keep * keep) * d0 * d0,
       allOff,
@@ -554,8 +554,8 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       output: result.output,
       factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCE)] : NO_FACTORS,
       role: "activation",
-      inner: [],
-      hazards: [],
+      inner: NO_INNER,
+      hazards: NO_HAZARDS,
       stash: result.stash,
     };
   },
@@ -582,7 +582,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       gradient.shared = (gradient.shared ?? 0) - gradient.q * lost;
       if (gradient.crossCorrelation !== undefined) gradient.crossCorrelation -= lost;
     }
-    return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: [], weightGradients: [] };
+    return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },
 };
 

@@ -14,7 +14,15 @@ export { erf, normalCdf } from "../../numeric/normal.js";
  * backward κ_b = 3E[φ'⁴]/E[φ'²]² − 1. ReLU gives 5 and 5; a linear map 2 and 2.
  */
 export function activationKappa(moments: ActivationMoments): { forward: number; backward: number } {
-  const forward = moments.second > 0 ? moments.fourth / (moments.second * moments.second) - 1 : 2;
-  const backward = moments.derivativeSecond > 0 ? (3 * moments.derivativeFourth) / (moments.derivativeSecond * moments.derivativeSecond) - 1 : 2;
-  return { forward, backward };
+  return { forward: forwardKappa(moments), backward: backwardKappa(moments) };
+}
+
+/** κ_f of {@link activationKappa} alone (no object for the pair, on every activation of both passes). */
+export function forwardKappa(moments: ActivationMoments): number {
+  return moments.second > 0 ? moments.fourth / (moments.second * moments.second) - 1 : 2;
+}
+
+/** κ_b of {@link activationKappa} alone. */
+export function backwardKappa(moments: ActivationMoments): number {
+  return moments.derivativeSecond > 0 ? (3 * moments.derivativeFourth) / (moments.derivativeSecond * moments.derivativeSecond) - 1 : 2;
 }

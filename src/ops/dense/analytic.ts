@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -54,7 +54,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
     output,
     factors: ctx.ledger ? [factor(ratio, linearForwardRule(kind, gain, biasVariance), SOURCES.lengthMap)] : NO_FACTORS,
     role: "pre-activation",
-    inner: [],
+    inner: NO_INNER,
     hazards: [
       {
         kind: "accumulation",
@@ -215,7 +215,7 @@ export function linearBackward(
   return {
     input,
     factors: ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS,
-    inner: [],
+    inner: NO_INNER_GRADIENTS,
     weightGradients,
   };
 }
