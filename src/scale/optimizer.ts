@@ -5,7 +5,7 @@
 import type { Format } from "../formats/index.js";
 import { getFormat } from "../formats/index.js";
 import type { HazardKind, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, probabilityAnyAbove, scaleProfile, worseVerdict, type RangeLimits, type RiskThresholds } from "../risk/index.js";
+import { DEFAULT_THRESHOLDS, fractionBelow, limitsFor, nonzeroElements, probabilityAnyAbove, scaleProfile, worseVerdict, type RangeLimits, type RiskThresholds } from "../risk/index.js";
 import {
   clippedBy,
   flushedSecondMoments,
@@ -23,7 +23,7 @@ import {
 import { notCountedSentence, plainNumber, sentenceStart, tinyShare } from "../risk/words.js";
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
-import { SwampingSums } from "./swamping.js";
+import { SwampingSums, sameLaw } from "./swamping.js";
 
 export { swampedShare } from "./swamping.js";
 
@@ -68,6 +68,7 @@ export interface WeightOptimizerCheck {
   gradient: string;
   weightRms: number;
   gradientRms: { start: number; end: number };
+  /** one per schedule point; weights whose laws and updates' laws are equal share one list (the same numbers) */
   updates: UpdateLoss[];
   /** AdamW only: share of decoupled weight-decay steps (lr·decay·w) lost, at the end learning rate (the peak one when the schedule ends at 0) */
   decayLost: number | null;
@@ -256,9 +257,19 @@ function updateLoss(
   // clipping multiplies every gradient by one factor before the step: SGD's and momentum's updates follow it, Adam's
   // once ε is no longer negligible beside the clipped gradients
   const g = clipped !== undefined ? scaleProfile(gradient[side], clipped.factor) : gradient[side];
-  const update = updateProfile(optimizer, g, point.lr, point.firstStep, epsilon);
+  const loss = lossOf(sums, w, point, updateProfile(optimizer, g, point.lr, point.firstStep, epsilon), ulp);
+  // the same update without the clip: what raising clip-norm would keep
+  if (clipped !== undefined) {
+    const plannedUnclipped = sums.lost(w, updateProfile(optimizer, gradient[side], point.lr, point.firstStep, epsilon))[2] as number;
+    loss.clipped = { ...clipped, plannedUnclipped };
+  }
+  return loss;
+}
+
+// An update's numbers against its weight: its lost shares in each format and its size.
+function lossOf(sums: SwampingSums, w: MagnitudeProfile, point: SchedulePointRate, update: MagnitudeProfile, ulp: number): UpdateLoss {
   const lost = sums.lost(w, update);
-  const loss: UpdateLoss = {
+  return {
     at: point.at,
     learningRate: point.lr,
     updateRms: update.rms,
@@ -269,12 +280,6 @@ function updateLoss(
     compensated: lost[3] as number,
     stochasticStepsToAverage: stepsToAverage(update.rms, ulp),
   };
-  // the same update without the clip: what raising clip-norm would keep
-  if (clipped !== undefined) {
-    const plannedUnclipped = sums.lost(w, updateProfile(optimizer, gradient[side], point.lr, point.firstStep, epsilon))[2] as number;
-    loss.clipped = { ...clipped, plannedUnclipped };
-  }
-  return loss;
 }
 
 /** Where `clip-norm` scales the gradients down, at each side of the horizon (src/risk/second-moments.ts). */
@@ -332,7 +337,7 @@ export function checkOptimizer(
         return { value: optimizer.epsilon, stored, vanishes: stored === 0 };
       })()
     : null;
-  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip, epsilon: epsilon?.stored ?? 0 };
+  const context: WeightCheckContext = { optimizer, points, sums, updateFormat, stateFlushBound, stateOverflow, adamLike, decayLost, clip, epsilon: epsilon?.stored ?? 0, made: [] };
   const tensors: WeightOptimizerCheck[] = [];
   for (let p = 0; p < pairs.length; p++) {
     const { weight, gradient } = pairs[p] as { weight: TensorPrediction; gradient: TensorPrediction };
@@ -420,17 +425,97 @@ interface WeightCheckContext {
   clip: Clips | null;
   /** Adam's ε as the state format stores it (0 for the others) */
   epsilon: number;
+  /** the update lists made so far (without a clip), for weights whose laws and updates' laws meet one again */
+  made: MadeUpdates[];
+}
+
+/**
+ * A weight's update list and what its numbers are made of: the weight's law and its updates' laws, point by point, and
+ * for each point whether Adam's update there is set by the learning rate alone (see {@link settledBy}).
+ */
+interface MadeUpdates {
+  weight: MagnitudeProfile;
+  laws: MagnitudeProfile[];
+  keys: number[];
+  updates: UpdateLoss[];
+}
+
+/** How many update lists an assessment keeps to share: a network has few weight laws (a width, its bias). */
+const MADE_LIMIT = 16;
+
+/**
+ * The updates of a weight at each point of the schedule. Every number of an update is a function of the weight's law
+ * and the update's (its lost shares, src/scale/swamping.ts; its rms, its size against the weight's rms and the ulp of
+ * that rms), so weights whose laws and updates' laws meet an earlier weight's share that weight's list: a network's
+ * layers of one width, under Adam, whose update sizes are set by the learning rate alone, make it once.
+ */
+function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: MagnitudeProfile): UpdateLoss[] {
+  const { optimizer, points } = c;
+  const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
+  const updates: UpdateLoss[] = [];
+  if (c.clip !== null) {
+    for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, ulp, c.clip, c.epsilon));
+    return updates;
+  }
+  const made = c.made;
+  // first by the keys alone, with no update made: Adam's updates where ε is negligible
+  const keys: number[] = [];
+  let keyed = true;
+  for (let j = 0; j < points.length; j++) {
+    const key = settledBy(c, points[j] as SchedulePointRate, gradient);
+    keys.push(key);
+    if (key < 0) keyed = false;
+  }
+  if (keyed) {
+    for (let k = 0; k < made.length; k++) {
+      const m = made[k] as MadeUpdates;
+      if (sameKeys(m.keys, keys) && sameLaw(m.weight, w) && m.weight.zeroFraction === w.zeroFraction) return m.updates;
+    }
+  }
+  const laws: MagnitudeProfile[] = [];
+  for (let j = 0; j < points.length; j++) {
+    const point = points[j] as SchedulePointRate;
+    laws.push(updateProfile(optimizer, point.at === "end" ? gradient.end : gradient.start, point.lr, point.firstStep, c.epsilon));
+  }
+  for (let k = 0; k < made.length; k++) {
+    const m = made[k] as MadeUpdates;
+    if (!sameLaw(m.weight, w) || m.weight.zeroFraction !== w.zeroFraction) continue;
+    let same = true;
+    for (let j = 0; j < laws.length && same; j++) same = sameLaw(m.laws[j] as MagnitudeProfile, laws[j] as MagnitudeProfile);
+    if (same) return m.updates;
+  }
+  for (let j = 0; j < points.length; j++) updates.push(lossOf(c.sums, w, points[j] as SchedulePointRate, laws[j] as MagnitudeProfile, ulp));
+  if (made.length < MADE_LIMIT) made.push({ weight: w, laws, keys, updates });
+  return updates;
+}
+
+/**
+ * Adam's update at a point is set by the point alone where ε is negligible beside the gradients' rms (updateProfile:
+ * the damping is then 1, and at the first step every nonzero gradient moves by the learning rate): its law is then
+ * the point's and whether any element is nonzero, 1 or 0. −1 where it is not (another optimizer, a larger ε).
+ */
+function settledBy(c: WeightCheckContext, point: SchedulePointRate, gradient: TensorPrediction): number {
+  if (!c.adamLike) return -1;
+  const g = point.at === "end" ? gradient.end : gradient.start;
+  const sigma = g.rms;
+  if (!(sigma > 0 && c.epsilon < EPSILON_NEGLIGIBLE * sigma)) return -1;
+  return nonzeroElements(g) > 0 ? 1 : 0;
+}
+
+// whether two weights' keys (settledBy) are equal and all settled
+function sameKeys(a: readonly number[], b: readonly number[]): boolean {
+  if (a.length !== b.length) return false;
+  for (let j = 0; j < a.length; j++) if ((a[j] as number) < 0 || a[j] !== b[j]) return false;
+  return true;
 }
 
 // One weight and its optimizer states, in a function of its own: the per-weight work that gets hot, apart from the
 // once-per-check setup around it.
 function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: TensorPrediction): WeightOptimizerCheck {
-  const { optimizer, points, adamLike, stateFlushBound } = c;
+  const { optimizer, adamLike, stateFlushBound } = c;
   // the weights at the end of the horizon have grown; their ulp with them
   const w = weight.end;
-  const updates: UpdateLoss[] = [];
-  const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
-  for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, ulp, c.clip, c.epsilon));
+  const updates = updatesOf(c, gradient, w);
   // the states hold the clipped gradients
   const end = scaleProfile(gradient.end, c.clip?.end?.factor ?? 1);
   const start = scaleProfile(gradient.start, c.clip?.start?.factor ?? 1);

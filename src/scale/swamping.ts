@@ -124,6 +124,21 @@ export function lawOf(profile: MagnitudeProfile, zeroFraction = 0): MagnitudePro
   return law;
 }
 
+/**
+ * Whether two profiles have one law as {@link lawOf} reads it (the zero share aside) and one rms: the lost shares of
+ * updates of equal laws against weights of equal laws are equal, whatever else their profiles hold.
+ */
+export function sameLaw(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
+  return (
+    a.rms === b.rms &&
+    a.log2Spread === b.log2Spread &&
+    a.shape === b.shape &&
+    a.bound === b.bound &&
+    a.elementLog2Spread === b.elementLog2Spread &&
+    nonzeroElements(a) > 0 === nonzeroElements(b) > 0
+  );
+}
+
 // The tables of every law met so far, shared by every assessment (a batch meets the same layers and learning
 // rates spec after spec): found by rms, then by the fields the shares read (lawOf), compared without building the
 // law. Keyed by those numbers only; cleared when they pass a bound, so a long-running worker does not grow without end.
