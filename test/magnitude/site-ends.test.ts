@@ -1,0 +1,84 @@
+/**
+ * predict's end pass completes the start pass's hazard sites in place, site by site in the order both passes meet them
+ * (src/magnitude/predict.ts, Phase.siteEnd). A site paired with another site's end profiles would be judged at the
+ * end of the horizon on another layer's numbers: these checks tie each site's end to its own layer's end tensors.
+ */
+import fc from "fast-check";
+import { describe, expect, it } from "vitest";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import type { LayerSpec } from "../../src/spec/types.js";
+import { act, dense, features, he, makeSpec, mse } from "./build-spec.js";
+
+describe("hazard sites at the end of the horizon", () => {
+  it("hold their own layer's end numbers (random stacks, workers and accumulation steps)", () => {
+    fc.assert(
+      fc.property(
+        fc.array(fc.constantFrom(8, 32, 96), { minLength: 1, maxLength: 6 }),
+        fc.array(fc.boolean(), { minLength: 6, maxLength: 6 }),
+        fc.constantFrom(1, 2, 4),
+        fc.constantFrom(1, 3),
+        fc.constantFrom("average" as const, "sum" as const),
+        fc.constantFrom(1, 1.25, 2),
+        fc.constantFrom("mean" as const, "sum" as const),
+        (widths, biases, workers, steps, combine, growth, reduction) => {
+          const layers: LayerSpec[] = [];
+          widths.forEach((width, i) => layers.push(dense(`d${i}`, width, he, biases[i] ?? false), act(`a${i}`)));
+          const spec = makeSpec(layers, {
+            input: features(24),
+            loss: mse(1, reduction),
+            training: { workers, accumulationSteps: steps, workerGradients: combine, horizon: { steps: 1000, weightGrowth: growth, finalLoss: 0.3 } },
+          });
+          const p = predict(buildGraph(spec).graph!, spec);
+          const byId = new Map(p.tensors.map((t) => [t.id, t]));
+          expect(p.hazards.length).toBeGreaterThan(0);
+          for (const site of p.hazards) {
+            expect(site.end).toBeDefined();
+            if (site.kind === "accumulation") {
+              // a dense layer's sums are its output: the same profile as its pre-activation tensor, at the end too
+              const output = byId.get(`${site.layer}/pre-activation`)!;
+              expect(site.output).toBe(output.start);
+              expect(site.end!.output).toBe(output.end);
+            }
+            if (site.kind === "gradient-sum") {
+              // the combined gradient is the sum, divided by the worker count when averaged (its definition in the plan)
+              const gradient = byId.get(site.tensor!)!;
+              const divisor = combine === "average" ? workers * workers : 1;
+              expect(gradient.end.meanSquare).toBe(site.end!.output!.meanSquare! / divisor);
+              expect(gradient.start.meanSquare).toBe(site.output!.meanSquare! / divisor);
+            }
+            if (site.kind === "loss-value") {
+              const loss = byId.get("loss/loss")!;
+              expect(site.end!.output!.rms).toBe(loss.end.rms);
+            }
+          }
+        },
+      ),
+      { numRuns: 40 },
+    );
+  });
+
+  it("leave every tensor its own profiles and shape, so an edit made in place moves one tensor only", () => {
+    // layers of one width and initialisation have equal numbers: still one profile object each (a caller adjusting a
+    // prediction before judging it, as judgePrediction allows, edits one tensor)
+    const layers: LayerSpec[] = [];
+    for (let i = 0; i < 4; i++) layers.push(dense(`d${i}`, 32, he, true), act(`a${i}`));
+    const spec = makeSpec(layers, { input: features(32), training: { horizon: { steps: 1000, weightGrowth: 1.5 } } });
+    const p = predict(buildGraph(spec).graph!, spec);
+    const profiles = new Set<object>();
+    const shapes = new Set<object>();
+    for (const t of p.tensors) {
+      expect(profiles.has(t.start) || profiles.has(t.end)).toBe(false);
+      profiles.add(t.start);
+      profiles.add(t.end);
+      if (t.role === "activation" || t.role === "pre-activation" || t.role === "activation-gradient") {
+        expect(shapes.has(t.shape)).toBe(false);
+        shapes.add(t.shape);
+      }
+    }
+    const weights = p.tensors.filter((t) => t.id === "d1/weight" || t.id === "d2/weight");
+    expect(weights[0]!.start).toEqual(weights[1]!.start);
+    weights[0]!.start.rms *= 2;
+    expect(weights[1]!.start.rms).toBe(weights[0]!.start.rms / 2);
+  });
+});
