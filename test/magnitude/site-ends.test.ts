@@ -7,8 +7,15 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
-import type { LayerSpec } from "../../src/spec/types.js";
+import type { Prediction } from "../../src/magnitude/types.js";
+import type { LayerSpec, NetworkSpec } from "../../src/spec/types.js";
 import { act, dense, features, he, makeSpec, mse } from "./build-spec.js";
+
+function predictOf(spec: NetworkSpec): Prediction {
+  const result = buildGraph(spec);
+  if (!result.ok) throw new Error(result.issues.map((i) => i.message).join("; "));
+  return predict(result.graph, spec);
+}
 
 describe("hazard sites at the end of the horizon", () => {
   it("hold their own layer's end numbers (random stacks, workers and accumulation steps)", () => {
@@ -29,7 +36,7 @@ describe("hazard sites at the end of the horizon", () => {
             loss: mse(1, reduction),
             training: { workers, accumulationSteps: steps, workerGradients: combine, horizon: { steps: 1000, weightGrowth: growth, finalLoss: 0.3 } },
           });
-          const p = predict(buildGraph(spec).graph!, spec);
+          const p = predictOf(spec);
           const byId = new Map(p.tensors.map((t) => [t.id, t]));
           expect(p.hazards.length).toBeGreaterThan(0);
           for (const site of p.hazards) {
@@ -64,7 +71,7 @@ describe("hazard sites at the end of the horizon", () => {
     const layers: LayerSpec[] = [];
     for (let i = 0; i < 4; i++) layers.push(dense(`d${i}`, 32, he, true), act(`a${i}`));
     const spec = makeSpec(layers, { input: features(32), training: { horizon: { steps: 1000, weightGrowth: 1.5 } } });
-    const p = predict(buildGraph(spec).graph!, spec);
+    const p = predictOf(spec);
     const profiles = new Set<object>();
     const shapes = new Set<object>();
     for (const t of p.tensors) {

@@ -13,6 +13,12 @@ import { checkOptimizer } from "../../src/scale/optimizer.js";
 import type { LayerSpec, NetworkSpec, OptimizerSpec } from "../../src/spec/types.js";
 import { act, dense, features, glorot, he, makeSpec, normalInit } from "../magnitude/build-spec.js";
 
+function predictOf(spec: NetworkSpec): Prediction {
+  const result = buildGraph(spec);
+  if (!result.ok) throw new Error(result.issues.map((i) => i.message).join("; "));
+  return predict(result.graph, spec);
+}
+
 const INITS = [he, glorot, normalInit(0.02), normalInit(1e-4)];
 
 function network(widths: number[], inits: number[], biases: boolean[]): LayerSpec[] {
@@ -31,7 +37,7 @@ function alone(prediction: Prediction, weight: TensorPrediction, gradient: Tenso
 }
 
 function assessEachAlone(spec: NetworkSpec): void {
-  const prediction = predict(buildGraph(spec).graph!, spec);
+  const prediction = predictOf(spec);
   const { optimizer } = spec.training;
   const all = checkOptimizer(optimizer, spec.precision, prediction, spec.training.horizon.steps);
   const byId = new Map(prediction.tensors.map((t) => [t.id, t]));
@@ -77,7 +83,7 @@ describe("update lists shared between weights of equal laws", () => {
 
   it("share a list only where the numbers are the same: layers of one width and initialisation", () => {
     const spec = makeSpec(network([64, 64, 64, 16], [0, 0, 0, 0], [true, true, true, true]), { input: features(64) });
-    const prediction = predict(buildGraph(spec).graph!, spec);
+    const prediction = predictOf(spec);
     const check = checkOptimizer(spec.training.optimizer, spec.precision, prediction, 1000);
     const list = (id: string) => check.tensors.find((t) => t.weight === id)!.updates;
     // d1 and d2 map 64 to 64 under He: equal weight laws, Adam's updates set by the learning rate
