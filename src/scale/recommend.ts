@@ -409,27 +409,41 @@ export function dynamicModel(
 /**
  * What the shifted-tail bounds (src/scale/overflow-enclosure.ts shiftBounds) take of each gradient's start and end
  * profiles, made on first use for every point of the horizon: at 2i (start) and 2i + 1 (end), the rms's logarithm,
- * whether the bounds apply to the law and count (as anyAboveEnclosure's, src/scale/overflow-enclosure.ts
+ * the spread, whether the bounds apply to the law and count (as anyAboveEnclosure's, src/scale/overflow-enclosure.ts
  * enclosureApplies: a Gaussian law, 16 elements or more), the levels of the count (three each) and log2 of the bound
- * (a billionth of a binade low; +∞ without one).
+ * (a billionth of a binade low; +∞ without one); per tensor whether both rms are positive (the rms then moves
+ * geometrically, profileBetween) and whether its start's law is Gaussian with 16 elements or more. Read off the
+ * profiles once per model, in typed arrays every point reads.
  */
 class ShiftEnds {
-  private made_: { rmsLog2: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array } | undefined;
+  private made_: { rmsLog2: Float64Array; spread: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array; bothRms: Uint8Array; gaussian: Uint8Array } | undefined;
   constructor(private readonly gradients: readonly GradientProfiles[]) {}
 
   made(): NonNullable<ShiftEnds["made_"]> {
     if (this.made_ !== undefined) return this.made_;
     const n = this.gradients.length;
-    const m = { rmsLog2: new Float64Array(2 * n), ok: new Uint8Array(2 * n), levels: new Float64Array(6 * n), bound: new Float64Array(2 * n) };
+    const m = {
+      rmsLog2: new Float64Array(2 * n),
+      spread: new Float64Array(2 * n),
+      ok: new Uint8Array(2 * n),
+      levels: new Float64Array(6 * n),
+      bound: new Float64Array(2 * n),
+      bothRms: new Uint8Array(n),
+      gaussian: new Uint8Array(n),
+    };
     for (let i = 0; i < n; i++) {
       const g = this.gradients[i]!;
+      m.bothRms[i] = g.start.rms > 0 && g.end.rms > 0 ? 1 : 0;
       for (let side = 0; side < 2; side++) {
         const j = 2 * i + side;
         const law = side === 0 ? g.start : g.end;
         m.rmsLog2[j] = Math.log2(law.rms);
+        m.spread[j] = law.log2Spread;
         const shape = law.shape;
         const count = law.elements * (1 - law.zeroFraction);
-        if (!(shape === "gaussian" || shape === "half-gaussian" || shape === "bounded") || !(count >= 16 && Number.isFinite(count))) continue;
+        const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
+        if (side === 0) m.gaussian[i] = gaussianLaw && count >= 16 ? 1 : 0;
+        if (!gaussianLaw || !(count >= 16 && Number.isFinite(count))) continue;
         m.ok[j] = 1;
         shiftLevels(count, m.levels, 3 * j);
         m.bound[j] = law.bound !== undefined && law.bound > 0 ? Math.log2(law.bound) - 1e-9 : Infinity;
@@ -460,30 +474,17 @@ class HorizonPoint {
   ) {
     const n = gradients.length;
     this.n = n;
-    this.profiles = new Array<MagnitudeProfile | undefined>(n).fill(undefined);
-    this.draws = new Array<ProfileDrawBounds | undefined>(n).fill(undefined);
-    this.gaussian = new Uint8Array(n);
-    for (let i = 0; i < n; i++) {
-      const g = gradients[i]!;
-      const start = g.start;
-      const shape = start.shape;
-      const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
-      this.gaussian[i] = gaussianLaw && start.elements * (1 - start.zeroFraction) >= 16 ? 1 : 0;
-      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
-      if (progress <= 0) {
-        this.profiles[i] = start;
-        this.draws[i] = g.startBounds;
-      } else if (progress >= 1) {
-        this.profiles[i] = g.end;
-        this.draws[i] = g.endBounds;
-      }
-    }
+    this.profiles = new Array<MagnitudeProfile | undefined>(n);
+    this.draws = new Array<ProfileDrawBounds | undefined>(n);
+    this.gaussian = ends.made().gaussian;
   }
 
   drawBounds(i: number): ProfileDrawBounds {
     let d = this.draws[i];
     if (d === undefined) {
-      d = new ProfileDrawBounds(this.profile(i));
+      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
+      const p = this.progress;
+      d = p <= 0 ? this.gradients[i]!.startBounds : p >= 1 ? this.gradients[i]!.endBounds : new ProfileDrawBounds(this.profile(i));
       this.draws[i] = d;
     }
     return d;
@@ -528,19 +529,18 @@ class HorizonPoint {
     for (let i = 0; i < n; i++) {
       const j = 2 * i + side;
       if (ends.ok[j] === 0) continue;
-      const g = this.gradients[i]!;
       let rmsLog2: number;
       let spread: number;
       let slack = 0;
       if (p <= 0 || p >= 1) {
         rmsLog2 = ends.rmsLog2[j]!;
-        spread = (p <= 0 ? g.start : g.end).log2Spread;
+        spread = ends.spread[j]!;
       } else {
-        const { start, end } = g;
-        spread = start.log2Spread + (end.log2Spread - start.log2Spread) * p;
+        const from = ends.spread[2 * i]!;
+        spread = from + (ends.spread[2 * i + 1]! - from) * p;
         const a = ends.rmsLog2[2 * i]!;
         const b = ends.rmsLog2[2 * i + 1]!;
-        if (start.rms > 0 && end.rms > 0) {
+        if (ends.bothRms[i] === 1) {
           rmsLog2 = a * (1 - p) + b * p;
           slack = 1e-9;
         } else rmsLog2 = a;
@@ -620,7 +620,8 @@ class HorizonPoint {
     let p = this.profiles[i];
     if (p === undefined) {
       const g = this.gradients[i]!;
-      p = profileBetween(g.start, g.end, this.progress);
+      const progress = this.progress;
+      p = progress <= 0 ? g.start : progress >= 1 ? g.end : profileBetween(g.start, g.end, progress);
       this.profiles[i] = p;
     }
     return p;
@@ -690,17 +691,19 @@ class OverflowNarrowing implements OverflowBounds {
   }
 
   // the trees from the bounds, once they are first set
-  private buildProducts(): void {
+  // (`lowsToo` false: the lower bounds are all 0 still, and their tree all 1 as made)
+  private buildProducts(lowsToo: boolean): void {
     const n = this.point.n;
     const size = this.size;
-    for (let i = 0; i < n; i++) {
-      this.lowFactors[size + i] = 1 - this.lows[i]!;
-      this.highFactors[size + i] = 1 - this.highs[i]!;
-    }
-    for (let j = size - 1; j >= 1; j--) {
-      this.lowFactors[j] = this.lowFactors[2 * j]! * this.lowFactors[2 * j + 1]!;
-      this.highFactors[j] = this.highFactors[2 * j]! * this.highFactors[2 * j + 1]!;
-    }
+    const lowFactors = this.lowFactors;
+    const highFactors = this.highFactors;
+    const lows = this.lows;
+    const highs = this.highs;
+    for (let i = 0; i < n; i++) highFactors[size + i] = 1 - highs[i]!;
+    for (let j = size - 1; j >= 1; j--) highFactors[j] = highFactors[2 * j]! * highFactors[2 * j + 1]!;
+    if (!lowsToo) return;
+    for (let i = 0; i < n; i++) lowFactors[size + i] = 1 - lows[i]!;
+    for (let j = size - 1; j >= 1; j--) lowFactors[j] = lowFactors[2 * j]! * lowFactors[2 * j + 1]!;
   }
 
   private setFactor(tree: Float64Array, i: number, factor: number): void {
@@ -773,7 +776,7 @@ class OverflowNarrowing implements OverflowBounds {
           if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
         }
       }
-      this.buildProducts();
+      this.buildProducts(false);
       if (first >= 0) this.integrate(first);
       // the others wait for the next narrowing, if the one integrated first does not decide with these bounds
       this.sweepPending = true;
@@ -782,7 +785,7 @@ class OverflowNarrowing implements OverflowBounds {
       // tails): enough for most; the rest are then ordered by what they leave open
       this.sweepPending = false;
       this.point.sweep(this.levelLog2, this.lows, highs, this.state);
-      this.buildProducts();
+      this.buildProducts(true);
       for (let i = 0; i < n; i++) {
         if (this.state[i] !== 2 && highs[i]! > 2 ** -54) {
           this.heapPending = true;
