@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -505,7 +505,7 @@ class HorizonPoint {
     for (let i = 0; i < n; i++) {
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is
       if (c.ok[i] === 0 || state[i] === 2 || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!) continue;
-      shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+      shiftBoundsTabled(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
       if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
       if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
     }

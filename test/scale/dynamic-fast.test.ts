@@ -6,10 +6,10 @@
 import * as fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { limitsFor } from "../../src/risk/index.js";
+import { limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { normalSf } from "../../src/numeric/normal.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
-import { anyAboveEnclosure, enclosureMoments, enclosureWith, shiftBounds, shiftLevels } from "../../src/scale/overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels } from "../../src/scale/overflow-enclosure.js";
 import { dynamicModel } from "../../src/scale/recommend.js";
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
@@ -155,5 +155,44 @@ describe("shiftBounds", () => {
       { numRuns: 2000 },
     );
     expect(skipped).toBeGreaterThan(40);
+  });
+});
+
+describe("shiftBoundsTabled", () => {
+  it("contains the computed probability and shiftBounds' own bounds, at most e^{(u + 1)/256} looser on each tail (property)", () => {
+    // Q(u) is bounded by its values on the grid about u (Q falls); the two-tail bounds of src/scale/overflow-enclosure.ts
+    // with those in place of Q: within the grid step's factor of them
+    const tabled = new Float64Array(2);
+    const plain = new Float64Array(2);
+    const levels = new Float64Array(3);
+    fc.assert(
+      fc.property(
+        fc.constantFrom("gaussian", "half-gaussian", "bounded"),
+        fc.double({ min: 16, max: 1e9, noNaN: true }),
+        fc.integer({ min: 0, max: 1000 }).map((j) => 0.01 + (5 * j) / 1000),
+        fc.integer({ min: 0, max: 1000 }).map((j) => -12 + (60 * j) / 1000),
+        (shape, n, s, above) => {
+          const p: MagnitudeProfile = { elements: n, zeroFraction: 0, shape, rms: 1, log2Spread: s, ...(shape === "bounded" ? { bound: 2 ** (above + 2) } : {}) };
+          const t = 2 ** above;
+          expect(enclosureApplies(p, t)).toBe(true);
+          shiftLevels(n, levels, 0);
+          shiftBoundsTabled(above, s, levels[0]!, levels[1]!, levels[2]!, tabled, 0);
+          shiftBounds(above, s, levels[0]!, levels[1]!, levels[2]!, plain, 0);
+          const value = probabilityAnyAbove(p, t);
+          expect(tabled[0]).toBeLessThanOrEqual(value);
+          expect(tabled[1]).toBeGreaterThanOrEqual(value);
+          // shiftBounds' own, to the fast tail's 1.2e-7 each way (the grid's values are the same fast tail)
+          expect(tabled[0]).toBeLessThanOrEqual(plain[0]! * (1 + 3e-7));
+          expect(tabled[1]).toBeGreaterThanOrEqual(plain[1]! * (1 - 3e-7));
+          const uHigh = (above - levels[0]!) / s;
+          const uLow = (above - levels[1]!) / s;
+          // ln Q falls at the rate φ(u)/Q(u) ≤ max(0, u) + 1 (the inverse Mills ratio, from memory): a grid step of 1/256
+          // moves Q by at most that factor
+          expect(tabled[1]).toBeLessThanOrEqual(Math.min(1, plain[1]! * Math.exp((Math.max(0, uHigh) + 1) / 256 + 1e-6)));
+          if (plain[0]! > 0 && uLow < 38) expect(tabled[0]).toBeGreaterThanOrEqual(plain[0]! * Math.exp(-(Math.max(0, uLow + 1 / 256) + 1) / 256 - 1e-6));
+        },
+      ),
+      { numRuns: 3000 },
+    );
   });
 });
