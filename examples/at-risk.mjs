@@ -3,7 +3,7 @@
 // Exit code 1 when some spec is at risk or fails, 2 when some file is not a valid spec.
 import { readdir } from "node:fs/promises";
 import { join } from "node:path";
-import { check, CheckInputError, formatSpecIssue, loadSpec } from "headroom";
+import { check, CheckInputError, formatSpecIssue, formatSpecPath, loadSpec } from "headroom";
 
 const folder = process.argv[2] ?? "specs";
 const files = (await readdir(folder)).filter((name) => /\.ya?ml$/.test(name)).sort();
@@ -23,7 +23,9 @@ for (const name of files) {
   } catch (error) {
     if (!(error instanceof CheckInputError)) throw error;
     invalid += 1;
-    console.log(`${name}: the network cannot be built: ${error.issues.map((issue) => issue.message).join("; ")}`);
+    // the issues name spec paths; the loaded file positions them (file:line:column)
+    const positioned = error.issues.map((issue) => ({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }));
+    console.log(`${name}: the network cannot be built: ${positioned.map(formatSpecIssue).join("; ")}`);
     continue;
   }
   if (result.verdict === "fits") continue;

@@ -16,6 +16,7 @@ import type {
   TensorRole,
 } from "../magnitude/types.js";
 import { gradientContributions, gradientSumFormat } from "../spec/normalize.js";
+import { lossScaleProblem } from "../spec/limits.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
@@ -232,9 +233,10 @@ export function limitsFor(plan: PrecisionPlan, name: FormatName): RangeLimits {
 // the scale given for every format (the caller's, then the plan's); undefined when each format's window decides
 function givenLossScale(plan: PrecisionPlan, options: CheckOptions): AppliedLossScale | undefined {
   if (options.lossScale !== undefined) {
-    if (!(options.lossScale > 0) || !Number.isFinite(options.lossScale)) {
-      throw new RangeError(`the loss scale must be a positive finite number, got ${options.lossScale}`);
-    }
+    // the spec's rule for `loss-scale` (a power of two in binary32's normal range), so a library caller, a flag and a
+    // spec accept the same scales
+    const problem = lossScaleProblem(options.lossScale);
+    if (problem !== undefined) throw new RangeError(`the loss scale ${problem}`);
     return { value: options.lossScale, origin: "option" };
   }
   if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };

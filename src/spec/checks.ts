@@ -6,7 +6,7 @@
 import { didYouMean } from "./issues.js";
 import type { RawIssue } from "./messages.js";
 import { DEFAULT_PLAN_NAME } from "./normalize.js";
-import { inputKindCount, lossScaleRangeProblem, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./limits.js";
+import { inputKindCount, lossScaleProblem, MAX_EXPANDED_LAYERS, MAX_TENSOR_ELEMENTS } from "./limits.js";
 
 type Path = (string | number)[];
 
@@ -283,11 +283,7 @@ const PLAN_ROLES = ["activations", "weights", "gradients", "optimizer-states", "
 function checkPlan(plan: Record<string, unknown>, path: Path, found: Found): void {
   const scale = plan["loss-scale"];
   if (typeof scale === "number" && Number.isFinite(scale) && scale > 0) {
-    const exponent = Math.log2(scale);
-    // a power of two changes only exponents, so scaling and unscaling are exact (common practice)
-    const problem = !Number.isInteger(exponent) || 2 ** exponent !== scale
-      ? `must be a power of two (such as 1024 or 65536), got ${scale}`
-      : lossScaleRangeProblem(exponent);
+    const problem = lossScaleProblem(scale);
     if (problem !== undefined) found.errors.push({ path: [...path, "loss-scale"], atKey: false, message: `loss scale ${problem}` });
   }
   const accumulate = plan["accumulate"];

@@ -51,6 +51,18 @@ export function lossScaleRangeProblem(exponent: number): string | undefined {
   return `2^${exponent} is outside binary32's normal range, 2^-126 to 2^127 (${why})`;
 }
 
+/**
+ * What is wrong with a loss scale, or undefined when it is usable: a power of two, so scaling and unscaling change only
+ * exponents and are exact (Micikevicius et al. 2018 §3.2), inside binary32's normal range ({@link lossScaleRangeProblem}).
+ * The spec's `loss-scale`, `--loss-scale` and the library's `lossScale` option share it.
+ */
+export function lossScaleProblem(scale: number): string | undefined {
+  if (!(scale > 0) || !Number.isFinite(scale)) return `must be a positive finite power of two, got ${scale}`;
+  const exponent = Math.log2(scale);
+  if (!Number.isInteger(exponent) || 2 ** exponent !== scale) return `must be a power of two (such as 1024 or 65536), got ${scale}`;
+  return lossScaleRangeProblem(exponent);
+}
+
 /** A bound as a message writes it: 1e30 rather than 1e+30. */
 export function boundText(value: number): string {
   return String(value).replace("e+", "e");

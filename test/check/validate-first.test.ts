@@ -47,7 +47,17 @@ describe("check validates its formats before any work", () => {
   });
 
   it("a bad loss scale is still reported before an unknown format", () => {
-    expect(() => check(spec, { formats: ["nosuchformat" as FormatName], lossScale: -1 })).toThrow("the loss scale must be a positive finite number, got -1");
+    expect(() => check(spec, { formats: ["nosuchformat" as FormatName], lossScale: -1 })).toThrow("the loss scale must be a positive finite power of two, got -1");
+    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+  });
+
+  // the spec's `loss-scale` and `--loss-scale` take powers of two inside binary32's normal range (a power of two scales
+  // exactly: Micikevicius et al. 2018 §3.2; binary32's normal range 2^-126 to 2^127: IEEE 754-2019 Table 3.5): the
+  // library takes the same, with the spec's message
+  it("a loss scale that is no power of two, or lies outside binary32's normal range, is refused as the spec refuses it", () => {
+    expect(() => check(spec, { lossScale: 3 })).toThrow(new RangeError("the loss scale must be a power of two (such as 1024 or 65536), got 3"));
+    expect(() => check(spec, { lossScale: 2 ** 200 })).toThrow(/2\^200 is outside binary32's normal range, 2\^-126 to 2\^127/);
+    expect(() => check(spec, { lossScale: 2 ** -130 })).toThrow(/2\^-130 is outside binary32's normal range/);
     expect(vi.mocked(predict)).not.toHaveBeenCalled();
   });
 });
