@@ -70,6 +70,8 @@ interface Model {
   second: Map<string, Float64Array>;
   random: RandomSource;
   step: number;
+  /** weights whose every element started at zero (biases, as initialised): no scale to set an update against */
+  zeroStart: Set<string>;
 }
 
 /** Collects measurements of one pass. */
@@ -181,7 +183,7 @@ function initialWeight(w: GraphWeight, random: RandomSource): Float64Array {
 
 function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
   const random = createRandom(seed);
-  const model: Model = { weights: new Map(), master: new Map(), first: new Map(), second: new Map(), random, step: 0 };
+  const model: Model = { weights: new Map(), master: new Map(), first: new Map(), second: new Map(), random, step: 0, zeroStart: new Set() };
   for (const layer of allLayers(setup.graph.layers)) {
     for (const w of layer.weights) {
       const data = initialWeight(w, random);
@@ -486,7 +488,10 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
       if (target[i] === before[i]) swamped++;
     }
     record.swamped[key] = changed > 0 ? swamped / changed : 0;
-    record.updateRatio[key] = w2 > 0 ? Math.sqrt(u2 / w2) : 0;
+    // a weight that starts at zero (a bias) has no size of its own to set its first updates against: its ratio would
+    // be infinite, then ~1 for any learning rate, and say nothing of the update's size
+    if (t === 1 && w2 === 0) model.zeroStart.add(key);
+    if (!model.zeroStart.has(key)) record.updateRatio[key] = w2 > 0 ? Math.sqrt(u2 / w2) : 0;
   }
   return record;
 }

@@ -150,7 +150,7 @@ export interface StepRecord {
   skipped: boolean;
   /** per weight: share of its elements whose nonzero update left the stored weight unchanged (swamping) */
   swamped: Record<string, number>;
-  /** per weight: rms(update) / rms(weight) */
+  /** per weight: rms(update) / rms(weight) before the update; weights that started at zero (biases) are left out */
   updateRatio: Record<string, number>;
 }
 

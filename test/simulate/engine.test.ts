@@ -147,6 +147,19 @@ describe("simulation engine", () => {
     expect(r.tensors.find((t) => t.id === "dense-0/weight")!.after).toBeDefined();
   });
 
+  it("leaves weights that start at zero (biases) out of the update/weight ratio: their second update is ~1 of a first one at any learning rate", () => {
+    const s = spec(MLP.replace("{ type: dense, width: 64, init: he-normal }", "{ type: dense, width: 64, init: he-normal, bias: true }"));
+    const r = runSimulation(s, { steps: 3 });
+    const history = r.history[0]!;
+    expect(r.tensors.some((t) => t.id === "dense-0/weight:bias")).toBe(true);
+    for (const h of history) {
+      expect(Object.keys(h.updateRatio)).toContain("dense-0/weight");
+      expect(Object.keys(h.updateRatio).filter((key) => key.endsWith("/bias"))).toEqual([]);
+    }
+    // the ratio of a weight that did not start at zero is lr·|g|/|w|: well below 1 at this learning rate (0.05, 0.1)
+    expect(Math.max(...history.map((h) => h.updateRatio["dense-0/weight"]!))).toBeLessThan(1);
+  });
+
   it("sees update swamping: without a master copy, bfloat16 weights ignore updates below 2^-9 of their size (SCIENCE.md §1.1)", () => {
     const s = spec(
       MLP.replace("master-weights: binary32", "master-weights: none")
