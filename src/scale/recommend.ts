@@ -191,6 +191,9 @@ class BoundedCurves implements ScaledTensorCurves {
   private flushK = NaN;
   private flushStart = 1;
   private flushEnd = 1;
+  // the shifted tails' levels of the start's count at 0 … 2 and the end's at 3 … 5 (they depend on the count alone),
+  // made on first use
+  private levels: Float64Array | undefined;
 
   constructor(
     private readonly parts: LossScaleCurveParts,
@@ -208,18 +211,46 @@ class BoundedCurves implements ScaledTensorCurves {
   private overflowUppers(k: number): void {
     if (k === this.overflowK) return;
     const t = this.limits.overflowLevel * 2 ** -k;
-    boundsOf(this.start, t, PAIR);
+    const levels = this.levelsOf();
+    boundsOf(this.start, t, PAIR, levels, 0);
     this.overflowStart = PAIR[1] as number;
     this.overflowStartLow = PAIR[0] as number;
     if (this.same) {
       this.overflowEnd = this.overflowStart;
       this.overflowEndLow = this.overflowStartLow;
     } else {
-      boundsOf(this.end, t, PAIR);
+      boundsOf(this.end, t, PAIR, levels, 3);
       this.overflowEnd = PAIR[1] as number;
       this.overflowEndLow = PAIR[0] as number;
     }
     this.overflowK = k;
+  }
+
+  private levelsOf(): Float64Array {
+    if (this.levels === undefined) {
+      const levels = new Float64Array(6);
+      shiftLevels(this.start.elements * (1 - this.start.zeroFraction), levels, 0);
+      shiftLevels(this.end.elements * (1 - this.end.zeroFraction), levels, 3);
+      this.levels = levels;
+    }
+    return this.levels;
+  }
+
+  // The shifted tails' upper bound at k (two normal tails per profile), 1 where they do not apply: rougher than
+  // overflowRiskUpper and a fraction of its cost, for the edge setter's scan, which only asks whether a tensor can
+  // reach a value found
+  overflowRiskRough(k: number): number {
+    const t = this.limits.overflowLevel * 2 ** -k;
+    const a = this.roughOf(this.start, t, 0);
+    if (a >= 1 || this.same) return a;
+    return Math.max(a, this.roughOf(this.end, t, 3));
+  }
+
+  private roughOf(profile: MagnitudeProfile, t: number, at: number): number {
+    if (!enclosureApplies(profile, t)) return 1;
+    const levels = this.levelsOf();
+    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, PAIR, 0);
+    return PAIR[1]!;
   }
 
   private flushUppers(k: number): void {
@@ -301,12 +332,11 @@ const ENCLOSURE = new Float64Array(2);
 // SEGMENT_ENOUGH the moment bounds where the law has them. Any of them serves the window's search, which then
 // integrates where they do not decide.
 const SEGMENT_ENOUGH = 1e-9;
-const LEVELS = new Float64Array(3);
-function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array): void {
+// `levels` at `at` … `at + 2` are the shift levels of the profile's count (overflow-enclosure.ts shiftLevels).
+function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array, levels: Float64Array, at: number): void {
   const applies = enclosureApplies(profile, t);
   if (applies) {
-    shiftLevels(profile.elements * (1 - profile.zeroFraction), LEVELS, 0);
-    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, LEVELS[0]!, LEVELS[1]!, LEVELS[2]!, into, 0);
+    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, into, 0);
     if (!(into[1]! > SEGMENT_ENOUGH)) return;
     if (profile.log2Spread >= 1) {
       const e = anyAboveEnclosure(profile, t);

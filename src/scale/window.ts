@@ -23,6 +23,11 @@ export interface ScaledTensorCurves {
   overflowRiskUpper?(log2Scale: number): number;
   /** optional upper bound on flushedEnergy tighter than the bounds', at more cost: asked for before integrating */
   flushedEnergyUpper?(log2Scale: number): number;
+  /**
+   * optional upper bound on overflowRisk between the cheap bounds and overflowRiskUpper in cost and tightness: the
+   * edge setter's scan asks for it before overflowRiskUpper (it only asks whether a tensor can reach a value found)
+   */
+  overflowRiskRough?(log2Scale: number): number;
   /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
   overflowRiskLower?(log2Scale: number): number;
   /**
@@ -177,6 +182,8 @@ const SEARCHES = new WeakMap<WindowsOf, WindowSearch>();
 // direction allows (see `known`).
 interface Table {
   k: number;
+  // the table's bit in each tensor's infoBits (its place among the curve's first 32 tables), −1 past them
+  bit: number;
   // per tensor i: the cheap bounds' low and high, the tighter upper bound and the value at 4i … 4i + 3
   data: Float64Array;
   // per tensor: HAS_VALUE, HAS_UPPER, TOLERANCE_KNOWN, TOLERATED, HAS_BOUNDS
@@ -187,6 +194,8 @@ const HAS_UPPER = 2;
 const TOLERANCE_KNOWN = 4;
 const TOLERATED = 8;
 const HAS_BOUNDS = 16;
+// the curve's rougher upper bound was taken (kept as the cheap bounds' high where lower)
+const HAS_ROUGH = 32;
 // a value or bound taken from another exponent is widened by this much (relative), for the rounding of two
 // evaluations of a curve that is monotone in exact arithmetic
 const ACROSS = 1e-9;
@@ -212,6 +221,10 @@ class WindowSearch {
   private readonly untoleratedTo: Float64Array;
   // the tables of each curve by exponent (for the flush curve: k + flushShift), ascending
   private readonly sorted: Record<Curve, Table[]>;
+  // per curve the first 32 tables made, and per tensor a bit for each that knows something of it: `known` visits
+  // those alone (a tensor is known at a few exponents of the many the search visits); past 32 tables, all of them
+  private readonly byBit: Record<Curve, Table[]>;
+  private readonly infoBits: Record<Curve, Uint32Array>;
   // exponents where the union bound was found over the budget (for some set of tensors): cheap bounds taken there
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
@@ -236,6 +249,8 @@ class WindowSearch {
     this.flushShift = flushFrom === undefined ? 0 : flushFrom.search.flushShift + flushFrom.shift;
     this.tables = { overflow: new Map(), flush: flushFrom === undefined ? new Map() : flushFrom.search.tables.flush };
     this.sorted = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.sorted.flush };
+    this.byBit = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.byBit.flush };
+    this.infoBits = { overflow: new Uint32Array(this.n), flush: flushFrom === undefined ? new Uint32Array(this.n) : flushFrom.search.infoBits.flush };
     this.toleratedFrom = flushFrom === undefined ? new Float64Array(this.n).fill(Infinity) : flushFrom.search.toleratedFrom;
     this.untoleratedTo = flushFrom === undefined ? new Float64Array(this.n).fill(-Infinity) : flushFrom.search.untoleratedTo;
     this.growth = new Float64Array(this.n);
@@ -313,7 +328,9 @@ class WindowSearch {
     let table = this.tables[curve].get(k);
     if (table === undefined) {
       const n = this.n;
-      table = { k, data: new Float64Array(4 * n), flags: new Uint8Array(n) };
+      const byBit = this.byBit[curve];
+      table = { k, bit: byBit.length < 32 ? byBit.length : -1, data: new Float64Array(4 * n), flags: new Uint8Array(n) };
+      if (table.bit >= 0) byBit.push(table);
       this.tables[curve].set(k, table);
       const sorted = this.sorted[curve];
       let j = sorted.length;
@@ -331,6 +348,12 @@ class WindowSearch {
     table.data[4 * i] = b === undefined ? -Infinity : b[0];
     table.data[4 * i + 1] = b === undefined ? Infinity : b[1];
     table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
+    this.mark(curve, table, i);
+  }
+
+  // tensor i is known at the table's exponent
+  private mark(curve: Curve, table: Table, i: number): void {
+    if (table.bit >= 0) this.infoBits[curve][i] = (this.infoBits[curve][i] as number) | (1 << table.bit);
   }
 
   private value(curve: Curve, k: number, i: number, table = this.table(curve, k)): number {
@@ -339,6 +362,7 @@ class WindowSearch {
     const v = curve === "overflow" ? t.overflowRisk(k) : t.flushedEnergy(k);
     table.data[4 * i + 3] = v;
     table.flags[i] = (table.flags[i] as number) | HAS_VALUE;
+    this.mark(curve, table, i);
     return v;
   }
 
@@ -352,6 +376,7 @@ class WindowSearch {
     if (u === undefined) return undefined;
     table.data[4 * i + 2] = u;
     table.flags[i] = flags | HAS_UPPER;
+    this.mark(curve, table, i);
     const lower = curve === "overflow" ? t.overflowRiskLower?.(k) : undefined;
     if (lower !== undefined) {
       // kept with the cheap bounds, where every exponent reads it (see `known`)
@@ -373,8 +398,19 @@ class WindowSearch {
     const k = rising ? at : at + this.flushShift;
     const growth = rising ? 0 : (this.growth[i] as number);
     const sorted = this.sorted[curve];
-    for (let j = 0; j < sorted.length; j++) {
-      const t = sorted[j] as Table;
+    const byBit = this.byBit[curve];
+    // every table has its bit: only those that know tensor i (lowest bit first); else every table
+    const bitsOnly = sorted.length === byBit.length;
+    let bits = bitsOnly ? (this.infoBits[curve][i] as number) : 0;
+    const count = bitsOnly ? 32 : sorted.length;
+    for (let j = 0; j < count; j++) {
+      let t: Table;
+      if (bitsOnly) {
+        if (bits === 0) break;
+        const lowest = bits & -bits;
+        bits ^= lowest;
+        t = byBit[31 - Math.clz32(lowest)] as Table;
+      } else t = sorted[j] as Table;
       const flags = t.flags[i] as number;
       if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) === 0) continue;
       let a = -Infinity;
@@ -630,6 +666,17 @@ class WindowSearch {
           holder = -1;
         }
         if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
+      }
+      const flags = table.flags[i] as number;
+      if (curve === "overflow" && (highs[i] as number) > floor && (flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0 && (flags & HAS_BOUNDS) !== 0) {
+        // a rougher bound first, where the curve has one: it settles many tensors below the value found
+        const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
+        table.flags[i] = flags | HAS_ROUGH;
+        if (rough !== undefined && rough < (table.data[4 * i + 1] as number)) {
+          table.data[4 * i + 1] = rough;
+          if (rough < (highs[i] as number)) highs[i] = rough;
+        }
+        if ((highs[i] as number) < floor) continue;
       }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
       if (u !== undefined && u < floor) continue;

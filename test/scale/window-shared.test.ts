@@ -72,6 +72,8 @@ function curves(shapes: readonly Shape[], shift = 0, growth = true): ScaledTenso
       flushedEnergyBounds: (k: number) => widen(flushedEnergy(k)),
       edgeGuessesLog2: { overflow: Math.round(s.overflowCentre) + s.guess, flush: Math.round(s.flushCentre) - shift - s.guess },
       ...(growth ? { flushedEnergyGrowth: Math.exp(s.slope) * (1 + 1e-9) } : {}),
+      // a rougher upper bound, between the cheap bounds and the value
+      overflowRiskRough: (k: number) => Math.min(1, overflowRisk(k) * (1 + 10 * s.slack) + s.slack / 10),
     };
   });
 }
@@ -125,6 +127,44 @@ describe("flushedEnergyGrowth", () => {
       }),
       { numRuns: 300 },
     );
+  });
+});
+
+describe("the tables' bits", () => {
+  it("give the definition's window past 32 exponents of one curve, where every table is scanned", () => {
+    // tensors whose own flush edges lie far apart, each guessed far off: the search visits many exponents
+    const wide = { ...OPTIONS, lowestLog2: -60, highestLog2: 60 };
+    const shapes: Shape[] = Array.from({ length: 40 }, (_, i) => ({ overflowCentre: 50 - i / 7, flushCentre: -55 + ((i * 37) % 40) * 2.5, slope: 3, slack: 0.5, guess: (i % 7) - 3 }));
+    const tensors = curves(shapes);
+    const windowOf = lossScaleWindows(tensors, wide);
+    expect(edges(windowOf())).toEqual(edges(directWindow(tensors, wide)));
+    // each held set drops the next most flush-prone tensor: each window's lower edge, and its setter's gallop, lie lower
+    const byFlush = [...tensors].sort((a, b) => b.flushedEnergy(0) - a.flushedEnergy(0));
+    for (let j = 1; j <= 30; j++) {
+      const held = new Set(byFlush.slice(0, j).map((t) => t.id));
+      expect(edges(windowOf(held))).toEqual(edges(directWindow(tensors.filter((t) => !held.has(t.id)), wide)));
+    }
+  });
+});
+
+describe("overflowRiskRough", () => {
+  it("bounds the gradient curves' overflow risk from above at every exponent", () => {
+    const limits = limitsFor({ gradients: "binary16" } as PrecisionPlan, "binary16");
+    const tensors: TensorPrediction[] = [];
+    for (const shape of ["gaussian", "half-gaussian", "bounded", "uniform"] as const) {
+      for (const [startRms, endRms, s0, s1, elements] of [
+        [1e-4, 1e5, 1.5, 2.5, 65_536],
+        [3e-3, 3e-12, 0.02, 2.25, 256],
+        [1, 1, 0.5, 0.5, 16],
+        [1e-2, 1e3, 3, 0.3, 1e8],
+      ] as const) {
+        const p = (rms: number, log2Spread: number): MagnitudeProfile => ({ elements, zeroFraction: 0.25, rms, log2Spread, shape, ...(shape === "bounded" ? { bound: 8 } : {}) });
+        tensors.push({ id: `g${tensors.length}`, role: "weight-gradient", start: p(startRms, s0), end: p(endRms, s1) } as TensorPrediction);
+      }
+    }
+    for (const c of boundedLossScaleCurves(tensors, limits)) {
+      for (let k = -40; k <= 64; k += 2) expect(c.overflowRiskRough!(k)).toBeGreaterThanOrEqual(c.overflowRisk(k));
+    }
   });
 });
 
