@@ -188,6 +188,11 @@ interface Table {
   data: Float64Array;
   // per tensor: HAS_VALUE, HAS_UPPER, TOLERANCE_KNOWN, TOLERATED, HAS_BOUNDS
   flags: Uint8Array;
+  // what `known` found of each tensor here (low, high), and its knowledge's version then plus 1 (0: not found yet),
+  // made on the first `known` at this exponent: a scan over the tensors asks again only where something was learnt
+  knownLo?: Float64Array;
+  knownHi?: Float64Array;
+  knownVersion?: Uint32Array;
 }
 const HAS_VALUE = 1;
 const HAS_UPPER = 2;
@@ -225,6 +230,8 @@ class WindowSearch {
   // those alone (a tensor is known at a few exponents of the many the search visits); past 32 tables, all of them
   private readonly byBit: Record<Curve, Table[]>;
   private readonly infoBits: Record<Curve, Uint32Array>;
+  // per curve and tensor, how many times something was learnt of it at any exponent
+  private readonly versions: Record<Curve, Uint32Array>;
   // exponents where the union bound was found over the budget (for some set of tensors): cheap bounds taken there
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
@@ -251,6 +258,7 @@ class WindowSearch {
     this.sorted = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.sorted.flush };
     this.byBit = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.byBit.flush };
     this.infoBits = { overflow: new Uint32Array(this.n), flush: flushFrom === undefined ? new Uint32Array(this.n) : flushFrom.search.infoBits.flush };
+    this.versions = { overflow: new Uint32Array(this.n), flush: flushFrom === undefined ? new Uint32Array(this.n) : flushFrom.search.versions.flush };
     this.toleratedFrom = flushFrom === undefined ? new Float64Array(this.n).fill(Infinity) : flushFrom.search.toleratedFrom;
     this.untoleratedTo = flushFrom === undefined ? new Float64Array(this.n).fill(-Infinity) : flushFrom.search.untoleratedTo;
     this.growth = new Float64Array(this.n);
@@ -325,14 +333,16 @@ class WindowSearch {
 
   private table(curve: Curve, at: number): Table {
     const k = curve === "flush" ? at + this.flushShift : at;
-    let table = this.tables[curve].get(k);
+    // (the curve's records read by name: a key that varies makes every read a keyed look-up)
+    const tables = curve === "overflow" ? this.tables.overflow : this.tables.flush;
+    let table = tables.get(k);
     if (table === undefined) {
       const n = this.n;
-      const byBit = this.byBit[curve];
+      const byBit = curve === "overflow" ? this.byBit.overflow : this.byBit.flush;
       table = { k, bit: byBit.length < 32 ? byBit.length : -1, data: new Float64Array(4 * n), flags: new Uint8Array(n) };
       if (table.bit >= 0) byBit.push(table);
-      this.tables[curve].set(k, table);
-      const sorted = this.sorted[curve];
+      tables.set(k, table);
+      const sorted = curve === "overflow" ? this.sorted.overflow : this.sorted.flush;
       let j = sorted.length;
       while (j > 0 && sorted[j - 1]!.k > k) j--;
       sorted.splice(j, 0, table);
@@ -351,9 +361,13 @@ class WindowSearch {
     this.mark(curve, table, i);
   }
 
-  // tensor i is known at the table's exponent
+  // something was learnt of tensor i at the table's exponent
   private mark(curve: Curve, table: Table, i: number): void {
-    if (table.bit >= 0) this.infoBits[curve][i] = (this.infoBits[curve][i] as number) | (1 << table.bit);
+    const versions = curve === "overflow" ? this.versions.overflow : this.versions.flush;
+    versions[i] = (versions[i] as number) + 1;
+    if (table.bit < 0) return;
+    const bits = curve === "overflow" ? this.infoBits.overflow : this.infoBits.flush;
+    bits[i] = (bits[i] as number) | (1 << table.bit);
   }
 
   private value(curve: Curve, k: number, i: number, table = this.table(curve, k)): number {
@@ -376,7 +390,6 @@ class WindowSearch {
     if (u === undefined) return undefined;
     table.data[4 * i + 2] = u;
     table.flags[i] = flags | HAS_UPPER;
-    this.mark(curve, table, i);
     const lower = curve === "overflow" ? t.overflowRiskLower?.(k) : undefined;
     if (lower !== undefined) {
       // kept with the cheap bounds, where every exponent reads it (see `known`)
@@ -386,22 +399,29 @@ class WindowSearch {
         table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
       } else if (lower > (table.data[4 * i] as number)) table.data[4 * i] = lower;
     }
+    this.mark(curve, table, i);
     return u;
   }
 
   // Bounds [pair[0], pair[1]] on tensor i's value at k from everything known of it at any exponent: the overflow risk
   // grows with k (what is known below k bounds it from below, above k from above), the flushed share falls.
-  private known(curve: Curve, at: number, i: number): Float64Array {
+  private known(curve: Curve, at: number, i: number, here: Table): Float64Array {
+    const rising = curve === "overflow";
+    const version = ((rising ? this.versions.overflow : this.versions.flush)[i] as number) + 1;
+    if (here.knownVersion !== undefined && here.knownVersion[i] === version) {
+      this.pair[0] = here.knownLo![i] as number;
+      this.pair[1] = here.knownHi![i] as number;
+      return this.pair;
+    }
     let lo = -Infinity;
     let hi = Infinity;
-    const rising = curve === "overflow";
     const k = rising ? at : at + this.flushShift;
     const growth = rising ? 0 : (this.growth[i] as number);
-    const sorted = this.sorted[curve];
-    const byBit = this.byBit[curve];
+    const sorted = rising ? this.sorted.overflow : this.sorted.flush;
+    const byBit = rising ? this.byBit.overflow : this.byBit.flush;
     // every table has its bit: only those that know tensor i (lowest bit first); else every table
     const bitsOnly = sorted.length === byBit.length;
-    let bits = bitsOnly ? (this.infoBits[curve][i] as number) : 0;
+    let bits = bitsOnly ? ((rising ? this.infoBits.overflow : this.infoBits.flush)[i] as number) : 0;
     const count = bitsOnly ? 32 : sorted.length;
     for (let j = 0; j < count; j++) {
       let t: Table;
@@ -439,6 +459,14 @@ class WindowSearch {
         if (across < hi) hi = across;
       }
     }
+    if (here.knownVersion === undefined) {
+      here.knownLo = new Float64Array(this.n);
+      here.knownHi = new Float64Array(this.n);
+      here.knownVersion = new Uint32Array(this.n);
+    }
+    here.knownLo![i] = lo;
+    here.knownHi![i] = hi;
+    here.knownVersion[i] = version;
     this.pair[0] = lo;
     this.pair[1] = hi;
     return this.pair;
@@ -483,7 +511,7 @@ class WindowSearch {
         continue;
       }
       const flags = table.flags[i] as number;
-      const known = this.known("overflow", k, i);
+      const known = this.known("overflow", k, i, table);
       // a probability is at least 0
       const a = Math.max(0, known[0] as number);
       const b = known[1] as number;
@@ -641,10 +669,10 @@ class WindowSearch {
     let floor = -Infinity;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) continue;
-      let known = this.known(curve, k, i);
+      let known = this.known(curve, k, i, table);
       if (known[1] === Infinity) {
         this.cheapBounds(curve, i, table);
-        known = this.known(curve, k, i);
+        known = this.known(curve, k, i, table);
       }
       highs[i] = known[1] as number;
       if ((known[0] as number) > floor) floor = known[0] as number;
@@ -674,6 +702,7 @@ class WindowSearch {
         table.flags[i] = flags | HAS_ROUGH;
         if (rough !== undefined && rough < (table.data[4 * i + 1] as number)) {
           table.data[4 * i + 1] = rough;
+          this.mark(curve, table, i);
           if (rough < (highs[i] as number)) highs[i] = rough;
         }
         if ((highs[i] as number) < floor) continue;
@@ -713,7 +742,7 @@ class WindowSearch {
     if ((this.untoleratedTo[i] as number) > key) ok = false;
     else if ((this.toleratedFrom[i] as number) < key) ok = true;
     if (ok === undefined) {
-      const known = this.known("flush", k, i);
+      const known = this.known("flush", k, i, table);
       if ((known[1] as number) <= tolerance) ok = true;
       else if ((known[0] as number) > tolerance) ok = false;
     }
