@@ -4,7 +4,7 @@
  * re-exported by src/risk/index.ts.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, normalSf } from "./_math.js";
+import { anyOf, exp2, normalSf } from "./_math.js";
 import { elementLaw, INNER_DRAW_OUTSIDE, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements, type ElementLaw } from "./laws.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
 
@@ -51,10 +51,10 @@ const MASS_ABOVE = Array.from({ length: 2 * SEGMENT_LIMIT + 1 }, (_, j) => norma
 // integrand grows with the draw (visited from +9 down), else it falls (visited from −9 up). The integrand is the
 // law's any-of-n-above at t (`anyAbove`) or its energy below t, picked here rather than by a closure per call.
 function segmentBound(profile: MagnitudeProfile, rising: boolean, law: ElementLaw, t: number, n: number, anyAbove: boolean): number {
-  const step = 2 ** profile.log2Spread;
+  const step = exp2(profile.log2Spread);
   // beyond ±9 the integrand is at most 1
   let sum = MASS_ABOVE[2 * SEGMENT_LIMIT]!;
-  let r = profile.rms * 2 ** (profile.log2Spread * (rising ? SEGMENT_LIMIT : -SEGMENT_LIMIT));
+  let r = profile.rms * exp2(profile.log2Spread * (rising ? SEGMENT_LIMIT : -SEGMENT_LIMIT));
   for (let j = 2 * SEGMENT_LIMIT; j > 0; j--) {
     const value = anyAbove ? anyOf(law.above(r, t), n) : law.energyBelow(r, t);
     // the segment next to the end just evaluated, toward the small end: mass P(j − 10 < |z| beyond …) by symmetry
@@ -113,8 +113,8 @@ export class ProfileDrawBounds {
     // the draws' scales at the nodes z = −9, 9, −4, 4 as laws.ts's nodeFactors makes them: 2^(spread·m) at a whole
     // z = m by m products of 2^spread (or of 2^−spread), times the eighth's power 1
     const rms = profile.rms;
-    const up = 2 ** s;
-    const down = 2 ** -s;
+    const up = exp2(s);
+    const down = exp2(-s);
     let above = 1;
     let below = 1;
     for (let m = 1; m <= 9; m++) {

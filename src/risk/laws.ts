@@ -3,7 +3,7 @@
  * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, erf, erfc, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
+import { anyOf, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 
 const SQRT2 = Math.SQRT2;
@@ -295,14 +295,14 @@ function nodeFactors(log2Spread: number): Float64Array {
     } else factors.fill(0, 0, FACTOR_WHOLE);
     FACTOR_KEYS[slot] = log2Spread;
     // the whole and eighth powers by products of three powers: each within 2e-15 relative (at most 17 roundings)
-    const up = 2 ** log2Spread;
-    const down = 2 ** -log2Spread;
+    const up = exp2(log2Spread);
+    const down = exp2(-log2Spread);
     factors[FACTOR_WHOLE + DRAW_LIMIT] = 1;
     for (let m = 1; m <= DRAW_LIMIT; m++) {
       factors[FACTOR_WHOLE + DRAW_LIMIT + m] = (factors[FACTOR_WHOLE + DRAW_LIMIT + m - 1] as number) * up;
       factors[FACTOR_WHOLE + DRAW_LIMIT - m] = (factors[FACTOR_WHOLE + DRAW_LIMIT - m + 1] as number) * down;
     }
-    const eighth = 2 ** (log2Spread * DRAW_STEP);
+    const eighth = exp2(log2Spread * DRAW_STEP);
     factors[FACTOR_EIGHTHS] = 1;
     for (let j = 1; j < FACTOR_ROW - FACTOR_EIGHTHS; j++) factors[FACTOR_EIGHTHS + j] = (factors[FACTOR_EIGHTHS + j - 1] as number) * eighth;
   }
@@ -519,7 +519,7 @@ function anyAboveReached(x: number, s: number): number {
   const n = (STATE[I_COUNT] as number);
   const limit = anyOf((STATE[I_SHARE] as number), n);
   if (!(limit > 0)) return NaN;
-  const lower = anyOf((STATE[I_SHARE] as number) * lawAbove(1, 2 ** v) * (1 - REACHED_FIT), n) * REACHED_MASS;
+  const lower = anyOf((STATE[I_SHARE] as number) * lawAbove(1, exp2(v)) * (1 - REACHED_FIT), n) * REACHED_MASS;
   return lower >= limit * (1 - REACHED_GAP) ? limit : NaN;
 }
 
@@ -590,7 +590,7 @@ function massBetween(a: number, b: number): number {
 }
 // φ(z)·f at z, for the panels' adaptive rule
 function weighted(z: number): number {
-  return normalPdf(z) * integrand((STATE[D_RMS] as number) * 2 ** ((STATE[D_SPREAD] as number) * z));
+  return normalPdf(z) * integrand((STATE[D_RMS] as number) * exp2((STATE[D_SPREAD] as number) * z));
 }
 // adaptive Simpson (Lyness 1969; the Richardson term added) on [a, b] of φ·f, with its middle value and whole sum
 function adaptSimpson(a: number, fa: number, m: number, fm: number, b: number, fb: number, whole: number, tolerance: number, depth: number): number {
@@ -796,7 +796,7 @@ const SMALL_RATIO = 0.5;
  * NaN when some draw does not (the caller then integrates). `ratio` is t/rms.
  */
 export function gaussianBelowOverDraws(ratio: number, spread: number): number {
-  if (!(ratio > 0) || !(ratio * 2 ** (spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
+  if (!(ratio > 0) || !(ratio * exp2(spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
   // erf(x) = (2/√π)·Σ (−1)^n x^{2n+1}/(n!(2n+1)) with x = a/√2 (Abramowitz & Stegun 7.1.5)
   const sigma = spread * LN2;
   const x = ratio / SQRT2;
@@ -823,7 +823,7 @@ export function gaussianBelowOverDraws(ratio: number, spread: number): number {
 
 /** E over draws of E[Z²; |Z| ≤ a] (the energy share below t), under the same condition as {@link gaussianBelowOverDraws}. */
 export function gaussianEnergyBelowOverDraws(ratio: number, spread: number): number {
-  if (!(ratio > 0) || !(ratio * 2 ** (spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
+  if (!(ratio > 0) || !(ratio * exp2(spread * DRAW_LIMIT) <= SMALL_RATIO)) return NaN;
   // 2φ(0)·Σ (−1/2)^k/k!·a^{2k+3}/(2k+3), as in gaussianEnergyBelow
   const sigma = spread * LN2;
   const a2 = ratio * ratio;
@@ -913,7 +913,7 @@ function drawBounds(rms: number, log2Spread: number, inner: boolean): [number, n
     const value = integrand(rms);
     return bounds(value, value);
   }
-  // 2^(spread·z) at the nodes, as 2 ** (log2Spread * z) (z = ±9, ±4 exactly)
+  // 2^(spread·z) at the nodes, as nodeFactors makes them (z = ±9, ±4 exactly)
   const factors = nodeFactors(log2Spread);
   const a = integrand(rms * factorAt(factors, 0));
   const b = integrand(rms * factorAt(factors, DRAW_NODES.z.length - 1));
@@ -1435,6 +1435,25 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   return level;
 }
 
+/**
+ * profileStatistics' two factors for a profile {@link gaussianLevelsTabled} admits, quantiles strictly between 0 and 1:
+ * out[0] = 2^level of {@link lawMixtureCrossing}(profile, "any-above", maxQuantile), out[1] = 2^level of its "below" at
+ * lowQuantile; the same levels by the same steps, bit for bit, in one pass (the law set once, no number boxed per
+ * return).
+ */
+export function gaussianLevelFactors(profile: MagnitudeProfile, maxQuantile: number, lowQuantile: number, out: Float64Array): void {
+  setLawIntegrand(profile, ANY_ABOVE, 1, false);
+  latticeClosure = null;
+  const spread = profile.log2Spread;
+  let level = levelTableValue(spread, maxQuantile);
+  if (!(level === level)) level = anyAboveLevel(spread, maxQuantile);
+  out[0] = exp2(level);
+  integrandKind = BELOW;
+  let low = lowTableValue(spread, lowQuantile);
+  if (!(low === low)) low = lawMixtureCrossing(profile, "below", lowQuantile);
+  out[1] = exp2(low);
+}
+
 // The levels of lawMixtureCrossing's "below" per (law, element spread, spread, p), direct-mapped on the spread's
 // and p's bits (a collision replaces the older level); the element spread is the log-normal law's (0 for the others).
 const BELOW_SLOTS = 2048;
@@ -1756,6 +1775,30 @@ function currentCountSlot(): number {
   }
   return countSlot();
 }
+// The four grid rows picked from each first row (with the law, share and element spread), and the remainder table's state
+// then: the rows are valid while no row has been made or cleared since. Direct-mapped on the first row.
+const GRID_CACHE_SLOTS = 64;
+const GRID_CACHE_KEY = new Float64Array(4 * GRID_CACHE_SLOTS).fill(NaN);
+const GRID_CACHE_ROWS = new Int32Array(4 * GRID_CACHE_SLOTS);
+const GRID_CACHE_STATE = new Float64Array(GRID_CACHE_SLOTS).fill(NaN);
+// the cache slot of `first` for the current law, emptied for it if another key held it
+function gridCacheSlot(first: number, elementSpread: number): number {
+  const slot = (first + 7 * integrandLaw + ((STATE[I_SHARE] as number) === 1 ? 31 : 0)) & (GRID_CACHE_SLOTS - 1);
+  const at = 4 * slot;
+  if (
+    GRID_CACHE_KEY[at] !== first ||
+    GRID_CACHE_KEY[at + 1] !== integrandLaw ||
+    GRID_CACHE_KEY[at + 2] !== STATE[I_SHARE] ||
+    GRID_CACHE_KEY[at + 3] !== elementSpread
+  ) {
+    GRID_CACHE_KEY[at] = first;
+    GRID_CACHE_KEY[at + 1] = integrandLaw;
+    GRID_CACHE_KEY[at + 2] = STATE[I_SHARE] as number;
+    GRID_CACHE_KEY[at + 3] = elementSpread;
+    GRID_CACHE_STATE[slot] = NaN;
+  }
+  return slot;
+}
 // pick the rows of the current law and count afresh
 function pickRows(n: number, elementSpread: number): void {
   COUNT_KEY[0] = integrandLaw;
@@ -1780,7 +1823,11 @@ function pickRows(n: number, elementSpread: number): void {
       GRID_KEY[2] === elementSpread &&
       GRID_KEY[3] === first &&
       gridRows === state;
-    for (let k = same ? 4 : 0; k < 4; k++) {
+    // the four rows from `first` as picked before (the counts of a check's tensors differ, their first grid rows less)
+    const cached = same ? -1 : gridCacheSlot(first, elementSpread);
+    const known = cached >= 0 && GRID_CACHE_STATE[cached] === state;
+    if (known) for (let k = 0; k < 4; k++) ROW_SLOTS[k] = GRID_CACHE_ROWS[4 * cached + k] as number;
+    for (let k = same || known ? 4 : 0; k < 4; k++) {
       let slot = rowSlot(-(first + k), Math.exp((first + k) / GRID_PER_LN));
       // the table was full and cleared: the rows found so far are gone, start again
       if (slot < 0) {
@@ -1791,6 +1838,10 @@ function pickRows(n: number, elementSpread: number): void {
       fillRow(slot);
     }
     rowCount = 4;
+    if (cached >= 0 && !known) {
+      for (let k = 0; k < 4; k++) GRID_CACHE_ROWS[4 * cached + k] = ROW_SLOTS[k] as number;
+      GRID_CACHE_STATE[cached] = remainderCount + remainderClears * REMAINDER_SLOTS;
+    }
     GRID_KEY[0] = integrandLaw;
     GRID_KEY[1] = (STATE[I_SHARE] as number);
     GRID_KEY[2] = elementSpread;
@@ -2136,7 +2187,7 @@ function anyAboveSum(x: number, s: number, rule: number): number {
 }
 // the draw rule's sum at rms 1, t = 2^x
 function drawAt(x: number, s: number): number {
-  STATE[I_T] = 2 ** x;
+  STATE[I_T] = exp2(x);
   return drawSum(1, s);
 }
 
@@ -2218,23 +2269,15 @@ export function gaussianLevelsTabled(profile: MagnitudeProfile): boolean {
   );
 }
 
-// The count's interpolation in ln n, per spread row: COLUMN_VALUES[slot][a] = Σ_k N_k·level(a, first + k), the inner sum
-// of levelTableValue for row a (NaN: not yet summed). Every tensor of one count (and share and p) at any spread reads
-// the same 8 sums, so each is taken once: a look-up reads 8 numbers instead of 48 from 8 rows scattered over the
-// table. The same sums in the same order as before, so the same levels bit for bit. Direct-mapped on (share, p, count):
-// a collision replaces the older column.
-const COLUMN_SLOTS = 64;
-const COLUMN_KEYS = new Float64Array(COLUMN_SLOTS * 2).fill(NaN);
-const COLUMN_VALUES: Float64Array[] = [];
-const COLUMN_FIRST = new Float64Array(COLUMN_SLOTS);
-// spread rows a of the level tables (TABLE_MAX_SPREAD/ROW_STEP and the polynomial's points past it)
-const COLUMN_ROWS = Math.ceil(TABLE_MAX_SPREAD / ROW_STEP) + SPREAD_POINTS + 1;
-// the last table's key and rows (the calls of one check ask for one or two levels p)
+// the last table's key and rows (the calls of one check ask for one or two levels p), and the count whose weights in
+// ln n N_WEIGHTS hold, with its first count point (the counts of a check's tensors mostly differ: its start and end
+// profiles, and its formats, share one)
 const LAST_LEVEL_KEY = new Float64Array(1).fill(NaN);
 let lastLevelRows: (Window | undefined)[] = [];
+const N_WEIGHTS_OF = new Float64Array(2).fill(NaN);
 function levelTableValue(spread: number, p: number): number {
-  const share = (STATE[I_SHARE] as number);
-  const count = (STATE[I_COUNT] as number);
+  const share = STATE[I_SHARE] as number;
+  const count = STATE[I_COUNT] as number;
   const key = share === 1 ? p : -p;
   let rows = lastLevelRows;
   if (key !== LAST_LEVEL_KEY[0]) {
@@ -2249,31 +2292,16 @@ function levelTableValue(spread: number, p: number): number {
   }
   const v = spread / ROW_STEP;
   const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
-  if (!(firstRow >= 0 && firstRow + SPREAD_POINTS <= COLUMN_ROWS)) return NaN;
-  BITS[0] = key;
-  let hash = Math.imul((BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x9e3779b1), 0x85ebca6b);
-  BITS[0] = count;
-  hash = Math.imul(hash ^ (BITS_WORDS[0] as number) ^ Math.imul(BITS_WORDS[1] as number, 0x27d4eb2f), 0x165667b1);
-  const slot = (hash >>> 20) & (COLUMN_SLOTS - 1);
-  let column = COLUMN_VALUES[slot];
-  if (COLUMN_KEYS[2 * slot] !== key || COLUMN_KEYS[2 * slot + 1] !== count || column === undefined) {
+  if (count !== N_WEIGHTS_OF[0]) {
     const u = Math.log(count) * GRID_PER_LN;
     const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
     // the lowest count point is GRID_COUNT's row and below (ln 64·8 ≈ 33.3): a count point at or below 30 is left to the search
     if (first < 30) return NaN;
-    if (column === undefined) {
-      column = new Float64Array(COLUMN_ROWS + TABLE_POINTS);
-      COLUMN_VALUES[slot] = column;
-    }
-    column.fill(NaN, 0, COLUMN_ROWS);
-    // the count's weights in ln n kept after the rows' sums
     lagrangeWeights(N_WEIGHTS, X_SCALE, u - first);
-    column.set(N_WEIGHTS, COLUMN_ROWS);
-    COLUMN_FIRST[slot] = first;
-    COLUMN_KEYS[2 * slot] = key;
-    COLUMN_KEYS[2 * slot + 1] = count;
+    N_WEIGHTS_OF[0] = count;
+    N_WEIGHTS_OF[1] = first;
   }
-  const first = COLUMN_FIRST[slot] as number;
+  const first = N_WEIGHTS_OF[1] as number;
   const s = v - firstRow;
   if (s !== S_WEIGHTS_AT[0]) {
     lagrangeWeights(S_WEIGHTS, S_SCALE, s);
@@ -2282,34 +2310,24 @@ function levelTableValue(spread: number, p: number): number {
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) {
     const a = firstRow + r;
-    let sum = column[a] as number;
-    if (sum !== sum) {
-      sum = columnSum(rows, column, a, first, count, p);
-      column[a] = sum;
+    const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
+    const at = first - row.base;
+    let sum = 0;
+    for (let k = 0; k < TABLE_POINTS; k++) {
+      let level = row.values[at + k] as number;
+      if (level !== level) {
+        STATE[I_COUNT] = Math.exp((first + k) / GRID_PER_LN);
+        row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
+        STATE[I_COUNT] = count;
+        // read back from the table: a level taken from the call's return value made the compiler keep every level of
+        // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
+        level = row.values[at + k] as number;
+      }
+      sum += (N_WEIGHTS[k] as number) * level;
     }
     result += (S_WEIGHTS[r] as number) * sum;
   }
   return result;
-}
-// Σ_k N_k·level(a, first + k) of row a, the count's weights N_k kept in the column past its rows; the levels not yet in
-// the table are found by the search (the integrand's count set to each count point meanwhile)
-function columnSum(rows: (Window | undefined)[], column: Float64Array, a: number, first: number, count: number, p: number): number {
-  const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
-  const at = first - row.base;
-  let sum = 0;
-  for (let k = 0; k < TABLE_POINTS; k++) {
-    let level = row.values[at + k] as number;
-    if (level !== level) {
-      STATE[I_COUNT] = Math.exp((first + k) / GRID_PER_LN);
-      row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
-      STATE[I_COUNT] = count;
-      // read back from the table: a level taken from the call's return value made the compiler keep every level of
-      // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
-      level = row.values[at + k] as number;
-    }
-    sum += (column[COLUMN_ROWS + k] as number) * level;
-  }
-  return sum;
 }
 
 // Tables of the Gaussian "below" levels (the predicted low magnitude): the level where the share below is p depends on

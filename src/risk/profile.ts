@@ -3,7 +3,7 @@
  * smallest magnitudes) and the numbers that judge it against one format's range.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { normalSf, normalUpperQuantile, hashSlot, hashWords } from "./_math.js";
+import { exp2, normalSf, normalUpperQuantile, hashSlot, hashWords } from "./_math.js";
 import {
   shapeCode,
   isConstantLike,
@@ -11,6 +11,7 @@ import {
   nonzeroElements,
   gaussianBelowOverDraws,
   gaussianEnergyBelowOverDraws,
+  gaussianLevelFactors,
   gaussianLevelsTabled,
   gaussianRowsOverDraws,
   lawMixtureCrossing,
@@ -214,6 +215,9 @@ function levelSlot(): number {
   }
 }
 
+// the two factors gaussianLevelFactors writes
+const FACTORS = new Float64Array(2);
+
 /** The format-independent statistics of a profile at the given quantile levels. */
 export function profileStatistics(
   profile: MagnitudeProfile,
@@ -225,8 +229,8 @@ export function profileStatistics(
     const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
     return {
       rms: profile.rms,
-      max: profile.rms * 2 ** (spread * normalUpperQuantile(levels.maxQuantile)),
-      low: profile.rms * 2 ** (-spread * normalUpperQuantile(levels.lowQuantile)),
+      max: profile.rms * exp2(spread * normalUpperQuantile(levels.maxQuantile)),
+      low: profile.rms * exp2(-spread * normalUpperQuantile(levels.lowQuantile)),
     };
   }
   if (gaussianLevelsTabled(profile) && levels.maxQuantile > 0 && levels.maxQuantile < 1 && levels.lowQuantile > 0 && levels.lowQuantile < 1) {
@@ -234,8 +238,9 @@ export function profileStatistics(
     // and each look-up reads a 3 MB table; the same values bit for bit (the tables' points never depend on what was
     // computed before)
     const bound = profile.bound;
-    let max = profile.rms * 2 ** lawMixtureCrossing(profile, "any-above", levels.maxQuantile);
-    let low = profile.rms * 2 ** lawMixtureCrossing(profile, "below", levels.lowQuantile);
+    gaussianLevelFactors(profile, levels.maxQuantile, levels.lowQuantile, FACTORS);
+    let max = profile.rms * (FACTORS[0] as number);
+    let low = profile.rms * (FACTORS[1] as number);
     if (bound !== undefined && bound > 0) {
       max = Math.min(max, bound);
       low = Math.min(low, bound);
@@ -264,8 +269,8 @@ export function profileStatistics(
     }
     LEVEL_KEYS.set(KEY, slot * 6);
     // the factors 2^level themselves: a hit then costs two products, not two powers
-    LEVEL_VALUES[slot * 2] = 2 ** max;
-    LEVEL_VALUES[slot * 2 + 1] = 2 ** low;
+    LEVEL_VALUES[slot * 2] = exp2(max);
+    LEVEL_VALUES[slot * 2 + 1] = exp2(low);
     levelCount++;
   }
   let max = profile.rms * (LEVEL_VALUES[slot * 2] as number);

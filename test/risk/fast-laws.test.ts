@@ -3,6 +3,7 @@ import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { gaussianBelowOverDraws, gaussianEnergyBelowOverDraws, lawMixtureCrossing, lawOverDraws } from "../../src/risk/laws.js";
 import { fractionBelow, energyBelow, probabilityAnyAbove, profileStatistics } from "../../src/risk/profile.js";
+import { exp2 } from "../../src/risk/_math.js";
 
 // The law kernels' shortcuts against what they replace: the closed forms' moment factors by products against an exp per
 // term, and the caches (per count, per spread row) against the same numbers computed in another order, where a cache
@@ -33,6 +34,21 @@ function termwise(ratio: number, spread: number, energy: boolean): number {
   }
   return NaN;
 }
+
+describe("exp2", () => {
+  // 2^x by the definition e^{x·ln 2} (ECMAScript's `**` on binary64, ECMA-262 §6.1.6.1.3, is the reference); the bound
+  // is the rounding of x·ln 2 carried through the exponential plus Math.exp's own ulp
+  it("stays within (|x| + 1)·2^-52 relative of 2 ** x over the normal range", () => {
+    fc.assert(
+      fc.property(fc.double({ min: -1000, max: 1000, noNaN: true }), (x) => {
+        expect(apart(exp2(x), 2 ** x)).toBeLessThanOrEqual((Math.abs(x) + 1) * 2 ** -52);
+      }),
+      { numRuns: 2000 },
+    );
+    for (const x of [0, 1, -1, 0.5, 1 / 16, 9 * 2.7, -9 * 8.5]) expect(apart(exp2(x), 2 ** x)).toBeLessThanOrEqual((Math.abs(x) + 1) * 2 ** -52);
+    expect(exp2(0)).toBe(1);
+  });
+});
 
 describe("closed forms of the Gaussian shares far below the scale", () => {
   it("the moment factors by products stay within 1e-12 of an exp per term", () => {
