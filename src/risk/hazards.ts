@@ -214,8 +214,12 @@ export function evaluateHazard(
       draftsFor(site, site.input, site.output, context, end, "end");
     }
   }
-  const evaluations: HazardEvaluation[] = [];
-  const findings: Finding[] = [];
+  // gathered in EVALUATIONS and FINDINGS and copied out at their exact length (a fresh array grown by push keeps room
+  // for 16, and the result keeps thousands of them)
+  const evaluations = EVALUATIONS;
+  const findings = FINDINGS;
+  let evaluationCount = 0;
+  let findingCount = 0;
   // a network-wide count names the tensor contributing most, as its sentence does: the check's layer and input are
   // that tensor's (the first evaluation naming one), and so is its finding's subject
   let layer = site.layer;
@@ -247,10 +251,10 @@ export function evaluateHazard(
     };
     // an evaluation names its own layer only where it is not the check's: most name none, and keep one layout
     if (subject !== site.layer) evaluation.layer = subject;
-    evaluations.push(evaluation);
+    evaluations[evaluationCount++] = evaluation;
     if (verdict !== "fits") {
       // `at` always present (undefined for a site without an end, which JSON leaves out): one layout
-      findings.push({
+      findings[findingCount++] = {
         kind: worse.kind,
         severity: verdict,
         format: worse.format,
@@ -261,12 +265,12 @@ export function evaluateHazard(
         threshold: worse.threshold,
         at: ended ? at : undefined,
         sentence,
-      });
+      };
     }
   }
   // the check took a network-wide count's tensor for its layer: that tensor's evaluations name none, the others the site's
   if (layer !== site.layer) {
-    for (let i = 0; i < evaluations.length; i++) {
+    for (let i = 0; i < evaluationCount; i++) {
       const evaluation = evaluations[i] as HazardEvaluation;
       if (evaluation.layer === layer) delete evaluation.layer;
       else if (evaluation.layer === undefined) evaluation.layer = site.layer;
@@ -280,11 +284,15 @@ export function evaluateHazard(
     terms: site.terms,
     input,
     origin,
-    evaluations,
-    findings,
+    evaluations: evaluations.slice(0, evaluationCount),
+    findings: findings.slice(0, findingCount),
     constant: site.constant,
   };
 }
+
+// evaluateHazard's working arrays (it runs to completion before it is entered again)
+const EVALUATIONS: HazardEvaluation[] = [];
+const FINDINGS: Finding[] = [];
 
 function isWorse(a: Draft, b: Draft): boolean {
   const rank = VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict];
@@ -534,11 +542,27 @@ function gradientOf(site: HazardSite): string {
   return site.tensor ?? site.layer;
 }
 
-// A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), laid out as magnitude/profile.ts's
-// profileOf literal (every key, absent ones undefined, in its order), so the functions that read it see one layout.
-function scaledProfile(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
+// A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), written into `slot`, one of the working
+// profiles below, laid out as magnitude/profile.ts's profileOf literal (every key, absent ones undefined, in its order),
+// so the functions that read it see one layout; the profile itself for a factor 1. The gradient sums' summed, scaled
+// and divided profiles are read by the laws while a site is judged and kept by nothing (no draft or result holds a
+// profile of theirs), so a thousand sites need not make thousands of profiles.
+function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: number): MagnitudeProfile {
   if (factor === 1) return profile;
-  return profileCopy(profile, profile.elements, profile.zeroFraction, factor);
+  const bound = profile.bound;
+  slot.elements = profile.elements;
+  slot.zeroFraction = profile.zeroFraction;
+  slot.shape = profile.shape;
+  slot.rms = profile.rms * factor;
+  slot.log2Spread = profile.log2Spread;
+  slot.meanSquare = profile.meanSquare;
+  slot.maxElement = profile.maxElement;
+  slot.bound = bound !== undefined ? bound * factor : undefined;
+  slot.elementLog2Spread = profile.elementLog2Spread;
+  slot.sampleCorrelation = profile.sampleCorrelation;
+  slot.positionCorrelation = profile.positionCorrelation;
+  slot.coherentRms = profile.coherentRms;
+  return slot;
 }
 
 function profileCopy(profile: MagnitudeProfile, elements: number, zeroFraction: number, factor: number): MagnitudeProfile {
@@ -558,6 +582,15 @@ function profileCopy(profile: MagnitudeProfile, elements: number, zeroFraction: 
     coherentRms: profile.coherentRms,
   };
 }
+
+// the working profiles of scaledIn, laid out as profileCopy's (non-integer numbers: double fields from the start)
+const WORKING: MagnitudeProfile = { elements: 1.5, zeroFraction: 0.5, shape: "gaussian", rms: 1.5, log2Spread: 0.5 };
+const START_SUMMED = profileCopy(WORKING, 1.5, 0.5, 1);
+const END_SUMMED = profileCopy(WORKING, 1.5, 0.5, 1);
+const START_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
+const END_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
+const START_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
+const END_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
 
 // exp(x) overflows where x ≥ ln(overflow level): ln 65520 = 11.0901 in binary16 (SCIENCE.md §4). With the row
 // maximum subtracted each term is at most 1 and only the denominator (one term per key) can overflow.
@@ -748,14 +781,14 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
   const format = FORMATS[limits.format];
   const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
   const block = scaling === "block" ? blockScaledRiskCached(format) : null;
-  const summed = output !== undefined ? scaledProfile(output, context.lossScale) : scaledProfile(input, context.lossScale * terms);
+  const summed = output !== undefined ? scaledIn(START_SUMMED, output, context.lossScale) : scaledIn(START_SUMMED, input, context.lossScale * terms);
   const level = sumOverflowLevel(summed, block, scaling, limits, t);
   const overflow = probabilityAnyAbove(summed, level);
   putGraded(list, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
     overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates), t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
   if (context.workerGradients === "average" && context.workers > 1) {
-    const scaled = scaledProfile(input, context.lossScale);
-    const divided = scaledProfile(scaled, 1 / context.workers);
+    const scaled = scaledIn(START_SCALED, input, context.lossScale);
+    const divided = scaledIn(START_DIVIDED, scaled, 1 / context.workers);
     const dividedLevel = flushLevel(divided, block, scaling, limits, t);
     const lost = lostEnergy(scaled, divided, dividedLevel, block, scaling, limits, t);
     putGraded(list, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
@@ -794,8 +827,8 @@ function gradientSumSides(
   const block = scaling === "block" ? blockScaledRiskCached(format) : null;
   const lossScale = context.lossScale;
   const startOutput = site.output;
-  const startSummed = startOutput !== undefined ? scaledProfile(startOutput, lossScale) : scaledProfile(site.input, lossScale * terms);
-  const endSummed = endOutput !== undefined ? scaledProfile(endOutput, lossScale) : scaledProfile(endInput, lossScale * terms);
+  const startSummed = startOutput !== undefined ? scaledIn(START_SUMMED, startOutput, lossScale) : scaledIn(START_SUMMED, site.input, lossScale * terms);
+  const endSummed = endOutput !== undefined ? scaledIn(END_SUMMED, endOutput, lossScale) : scaledIn(END_SUMMED, endInput, lossScale * terms);
   const startLevel = sumOverflowLevel(startSummed, block, scaling, limits, t);
   const endLevel = sumOverflowLevel(endSummed, block, scaling, limits, t);
   let startOverflow = Number.NaN;
@@ -817,11 +850,11 @@ function gradientSumSides(
     overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endSummed.rms, false);
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
-    const startScaled = scaledProfile(site.input, lossScale);
-    const startDivided = scaledProfile(startScaled, 1 / workers);
+    const startScaled = scaledIn(START_SCALED, site.input, lossScale);
+    const startDivided = scaledIn(START_DIVIDED, startScaled, 1 / workers);
     const startLevelDivided = flushLevel(startDivided, block, scaling, limits, t);
-    const endScaled = scaledProfile(endInput, lossScale);
-    const endDivided = scaledProfile(endScaled, 1 / workers);
+    const endScaled = scaledIn(END_SCALED, endInput, lossScale);
+    const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
     const endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
     let startLost = Number.NaN;
     let endLost = Number.NaN;
