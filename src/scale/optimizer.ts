@@ -451,9 +451,9 @@ const MADE_LIMIT = 16;
  */
 function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: MagnitudeProfile): UpdateLoss[] {
   const { optimizer, points } = c;
-  const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
   const updates: UpdateLoss[] = [];
   if (c.clip !== null) {
+    const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
     for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, ulp, c.clip, c.epsilon));
     return updates;
   }
@@ -484,6 +484,8 @@ function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: Magnitu
     for (let j = 0; j < laws.length && same; j++) same = sameLaw(m.laws[j] as MagnitudeProfile, laws[j] as MagnitudeProfile);
     if (same) return m.updates;
   }
+  // the ulp of the weight's rms: a list shared above needs none
+  const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
   for (let j = 0; j < points.length; j++) updates.push(lossOf(c.sums, w, points[j] as SchedulePointRate, laws[j] as MagnitudeProfile, ulp));
   if (made.length < MADE_LIMIT) made.push({ weight: w, laws, keys, updates });
   return updates;
