@@ -207,18 +207,21 @@ export function weightPairs(prediction: Prediction): { weight: TensorPrediction;
   const tensors = prediction.tensors;
   // the gradients of each layer (a layer has a few weights): found by layer, then by suffix, with no key string made
   // per tensor
+  // per tensor (one pass: each tensor's record is read once), the weights in order
   const gradients = new Map<string, TensorPrediction[]>();
+  const weights: TensorPrediction[] = [];
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as TensorPrediction;
-    if (t.role !== "weight-gradient") continue;
+    const role = t.role;
+    if (role === "weight") weights.push(t);
+    if (role !== "weight-gradient") continue;
     const list = gradients.get(t.layer);
     if (list === undefined) gradients.set(t.layer, [t]);
     else list.push(t);
   }
   const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
-  for (let i = 0; i < tensors.length; i++) {
-    const t = tensors[i] as TensorPrediction;
-    if (t.role !== "weight") continue;
+  for (let i = 0; i < weights.length; i++) {
+    const t = weights[i] as TensorPrediction;
     const list = gradients.get(t.layer);
     if (list === undefined) continue;
     // the last of the layer's gradients with the weight's suffix, as one keyed table of them would keep
