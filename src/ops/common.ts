@@ -273,5 +273,34 @@ export function diagonalPullback(m: Curvature, onDiagonal: number, offDiagonal: 
     rowSquares: diagonalSquare + offDiagonal * offDiagonal * Math.max(m.rowSquares - m.diagonalSquare, 0),
   };
   if (m.indefinite === true) pulled.indefinite = true;
+  if (m.tangentExcess !== undefined) pulled.tangentExcess = m.tangentExcess;
+  if (m.tangentAbove !== undefined) pulled.tangentAbove = m.tangentAbove;
   return pulled;
+}
+
+/**
+ * The curvature `m` below a pointwise layer (already pulled through Φ'), for self parts that read y ≈ J·h: the tangent
+ * path from its input u grows by `own` = E[(φ'(u)·u)²]/E[φ²] through this layer and by `independent` = E[φ'²]·E[u²]/E[φ²]
+ * where it arrives from further down (both 1 for ReLU, leaky ReLU and the identity: φ'(u)·u = φ(u)). Its statistics are
+ * rescaled to carry min(1, 1/excess) of the excess (see Curvature.tangentExcess; own algebra, Cauchy–Schwarz on y's
+ * share along J·h).
+ */
+export function limitTangent(m: Curvature, own: number, independent: number): void {
+  if (!(own > 0) || !(independent > 0) || !Number.isFinite(own) || !Number.isFinite(independent)) return;
+  const above = m.tangentAbove ?? 1;
+  const before = m.tangentExcess ?? 1;
+  // where φ'(u)·u outgrows φ(u) near 0 (SiLU, GELU: by φ''(0)·u²/2) the two still point alike and y's share along J·h
+  // stays near 1 (pre-norm SiLU blocks measured so: test/magnitude/skip-projection.test.ts): only a unit that shrinks
+  // the tangent (a saturating one) counts here
+  const after = Math.min(own, 1) * above;
+  const scale = Math.min(1, 1 / after) / Math.min(1, 1 / before);
+  if (scale !== 1) {
+    const root = Math.sqrt(scale);
+    m.diagonal *= root;
+    m.diagonalSquare *= scale;
+    m.rowSquares *= scale;
+    if (m.skip !== undefined) m.skip = { rowSquares: m.skip.rowSquares * scale, diagonalSquare: m.skip.diagonalSquare * scale, covariance: m.skip.covariance * root };
+  }
+  m.tangentExcess = after;
+  m.tangentAbove = above * independent;
 }

@@ -210,6 +210,18 @@ export interface Curvature {
    * layers and pointwise activations; any other layer drops it (its M is then taken as symmetric)
    */
   skip?: { rowSquares: number; diagonalSquare: number; covariance: number };
+  /**
+   * E[(J·h)²]/E[y²] of the layers between this tensor h and the loss (> 1 where saturating activations in a chaotic
+   * stack grow a perturbation faster than the output they produce); absent: 1. The self parts read off M assume the
+   * output is J·h (exact for positively homogeneous layers); where it is not, y's share along J·h is at most |y|/|J·h|
+   * (Cauchy–Schwarz), so the statistics above are already scaled by min(1, 1/tangentExcess) (own algebra). The first
+   * activation above h sees the tangent as its own input (φ'(u)·u against φ(u)); those further up are taken as seeing
+   * it independent of their input, by the mean-field rule (χ against the output's gain), whose product is
+   * `tangentAbove`
+   */
+  tangentExcess?: number;
+  /** the product of E[φ'²]·E[u²]/E[φ²] over the activations between this tensor and the loss; absent: 1 */
+  tangentAbove?: number;
 }
 
 

@@ -12,7 +12,7 @@ import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
 
@@ -481,9 +481,15 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
       gradient.curvature.skip = { rowSquares, diagonalSquare, covariance: stein.below * skip.covariance };
     }
     gradient.shared = Math.min((gradient.shared ?? 0) + own * self.mean * self.mean + skipMean, gradient.q);
+    // below this unit the self parts read y ≈ J·h through φ'(h)·h in place of φ(h): a saturating φ makes that path
+    // outgrow the output (a chaotic tanh stack: ×χ per layer), which the curvature must not pass on as the gradient's
+    // (the rectifiers and the identity have φ'(h)·h = φ(h) exactly: nothing to limit)
+    if (!HOMOGENEOUS.has(name) && self.outputSecond > 0) limitTangent(gradient.curvature, tangentSecond(name, stash) / self.outputSecond, (d2 * stash.input.q) / self.outputSecond);
   }
   return { gradient, ratio, rule };
 }
+
+const HOMOGENEOUS: ReadonlySet<string> = new Set(["relu", "leaky-relu", "identity"]);
 
 function channelGateRule(name: string, derivativeSecond: number): Text {
   return () => `${name}: E[φ'²] of each channel weighed by the batch norm's 1/(var_c + ε) = ${fmt(derivativeSecond)}`;
@@ -497,6 +503,16 @@ function selfGateRule(name: string, derivativeSecond: number, ratio: number): Te
  * (E[φ'']/E[φ'])² and (E[φ' + u·φ'']/E[φ'])² of an activation's input u, the two from E[u·φ'] = q·E[φ''] and
  * E[u²·φ'] = q·E[φ' + u·φ''] (Stein's lemma), which hold for the rectifiers' kinks too; 0 where E[φ'] = 0
  */
+/** E[(φ'(u)·u)²] of an activation's input u (its zeros give 0) */
+function tangentSecond(name: string, stash: ActivationStash): number {
+  const input = stash.input;
+  const keep = 1 - input.zeroFraction;
+  const q = keep > 0 ? input.q / keep : 0;
+  if (!(q > 0)) return 0;
+  const { df } = activationFunction(name as ActivationName, stash.slope);
+  return keep * gaussianExpectationSplit((u) => (u * df(u)) ** 2, q);
+}
+
 function skipStein(name: string, stash: ActivationStash): { second: number; below: number } {
   const input = stash.input;
   const keep = 1 - input.zeroFraction;

@@ -240,6 +240,8 @@ export function densePullback(m: Curvature, v: number, outWidth: number, inWidth
   const rowSquares = m.indefinite === true ? counted : Math.min(counted, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
   const pulled: Curvature = { diagonal, diagonalSquare, rowSquares };
   if (m.indefinite === true) pulled.indefinite = true;
+  if (m.tangentExcess !== undefined) pulled.tangentExcess = m.tangentExcess;
+  if (m.tangentAbove !== undefined) pulled.tangentAbove = m.tangentAbove;
   // Wᵀ·A·W stays non-symmetric; E_i[Cov(x_i, (Wᵀg)_i)²] = v·fan_out·E[C²] against v·fan_in·E[C²] above, C_ja =
   // Cov(x_j, g_a) independent of W (own algebra)
   if (m.skip !== undefined) pulled.skip = { rowSquares: inWidth * v * v * skip, diagonalSquare: v * v * skip, covariance: (m.skip.covariance * outWidth) / inWidth };
