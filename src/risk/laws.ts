@@ -1201,7 +1201,7 @@ const LATTICE_ORIGIN = new Float64Array(1);
 let latticeClosure: ((v: number) => number) | null = null;
 function latticeValue(v: number): number {
   if (latticeClosure !== null) return latticeClosure(v);
-  STATE[I_T] = 2 ** v;
+  STATE[I_T] = exp2(v);
   return integrand(1);
 }
 // make lattice points [from, to] addressable, keeping the values already there

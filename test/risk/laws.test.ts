@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
-import { anyOf } from "../../src/risk/_math.js";
+import { anyOf, exp2 } from "../../src/risk/_math.js";
 import {
   directLawOverDraws,
   elementLaw,
@@ -139,7 +139,8 @@ describe("draw sums of the element laws", () => {
       const { bound: _bound, ...unbounded } = profile;
       const law = elementLaw(profile.shape === "bounded" ? { ...unbounded, shape: "gaussian" } : unbounded);
       for (const p of [0.2, 1e-2, 1e-5]) {
-        expect(lawMixtureCrossing(profile, "below", p, false)).toBe(mixtureCrossing((v) => law.below(1, 2 ** v), profile.log2Spread, p, false));
+        // the threshold 2^v as the lattice takes it (exp2), so the same arithmetic
+        expect(lawMixtureCrossing(profile, "below", p, false)).toBe(mixtureCrossing((v) => law.below(1, exp2(v)), profile.log2Spread, p, false));
       }
     }
   });
