@@ -539,6 +539,13 @@ class WindowSearch {
     for (let i = 0; i < n; i++) if ((state[i] as number) < 2) heap.push(i);
     while (heap.size > 0) {
       const i = heap.pop();
+      // the rougher bound first where the curve has one (a fraction of the tighter one's cost); back in the heap
+      if (state[i] === 0 && this.roughen(k, i, table)) {
+        heap.push(i);
+        answer = this.decided();
+        if (answer !== undefined) return answer;
+        continue;
+      }
       // a tensor whose tighter bound could still break the budget alone is integrated at once: either answer needs it
       if (state[i] === 0 && this.tighten(k, i, table) && (highs[i] as number) <= budget) heap.push(i);
       else this.integrate(k, i, table);
@@ -646,6 +653,24 @@ class WindowSearch {
   }
 
   // the tighter upper bound at k; false when the curve has none
+  // the rougher upper bound at k, once, kept as the cheap bounds' high (a probability's low 0 where there were none);
+  // false when the curve has none or it was taken
+  private roughen(k: number, i: number, table: Table): boolean {
+    const flags = table.flags[i] as number;
+    if ((flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) !== 0) return false;
+    const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
+    table.flags[i] = flags | HAS_ROUGH;
+    if (rough === undefined) return false;
+    if ((flags & HAS_BOUNDS) === 0) {
+      table.data[4 * i] = 0;
+      table.data[4 * i + 1] = rough;
+      table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
+    } else if (rough < (table.data[4 * i + 1] as number)) table.data[4 * i + 1] = rough;
+    this.mark("overflow", table, i);
+    this.setBounds(i, this.lows[i] as number, Math.max(this.lows[i] as number, rough));
+    return true;
+  }
+
   private tighten(k: number, i: number, table: Table): boolean {
     this.state[i] = 1;
     const u = this.upper("overflow", k, i, table);
