@@ -796,7 +796,15 @@ function summarise(
     const floor = epsilonFloor(formats.stateSmallest, (x) => storedEpsilon(formats.stateLimits, x) !== 0);
     // with the spec's key and the printed value, so that the remedy can be checked again
     const raiseTo = `raise epsilon to at least ${floor.replace(/\)$/, `; training.optimizer.epsilon: ${floor.slice(0, floor.indexOf(" "))})`)}`;
-    remedies.push(stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo);
+    const either = stateFormat.precision < binary32.precision ? `compute the update in binary32, or ${raiseTo}` : raiseTo;
+    // a kept epsilon does not bring back second moments that flush: where v̂ is 0 the update is m̂/ε (Kingma & Ba 2015,
+    // Algorithm 1), as large as epsilon is small, so the remedy says so and points to the states' format
+    const flushed = secondMoments !== null && secondMoments.verdict !== "fits" ? secondMoments.share : 0;
+    remedies.push(
+      flushed > 0
+        ? `${either}; ${stateFormat.precision < binary32.precision ? "either" : "it"} alone leaves ${pct(flushed)} of the second moments flushed, where the update becomes m̂/ε instead of m̂/√v̂: hold the states in binary32${secondMoments!.inBinary32 !== null && secondMoments!.inBinary32 < flushed ? " (above)" : ""}, which keeps both`
+        : either,
+    );
   }
   // when the clip is what makes updates or second moments small enough to lose, raising it is the first remedy: the
   // predicted global norm, rounded up at two digits, and what the plan keeps without the clip

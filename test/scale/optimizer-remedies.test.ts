@@ -205,16 +205,25 @@ describe("checkOptimizer remedies for decay steps, second moments and epsilon", 
       "hold the optimizer states in binary32 instead of binary16 (optimizer-states: binary32 in the plan): 0% of the second moments flush at the first step instead of 100% (+4 bytes per parameter for the two states)",
       // 2^-24 = 5.9604644775390625e-8 is binary16's smallest subnormal (IEEE 754-2019 §3.6); printed to nearest, as
       // 5.96e-8 rounds to it (the old rule printed 5.97e-8, rounded up though 5.96e-8 is already enough)
-      "compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24; training.optimizer.epsilon: 5.96e-8)",
+      // every second moment flushes too, and where v̂ is 0 Adam's update is m̂/ε (Kingma & Ba 2015, Algorithm 1): a
+      // kept epsilon alone does not help, which the remedy says
+      "compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24; training.optimizer.epsilon: 5.96e-8); either alone leaves 100% of the second moments flushed, where the update becomes m̂/ε instead of m̂/√v̂: hold the states in binary32 (above), which keeps both",
     ]);
     // the printed value is itself enough: round to nearest (IEEE 754-2019 §4.3.1) takes it to 2^-24, not to 0
     expect(roundTo(getFormat("binary16"), 5.96e-8)).toBe(2 ** -24);
   });
 
+  it("second moments that keep their values: the epsilon remedy stands alone", () => {
+    // (1 − β2)·g² = 1e-3·1e-2 = 1e-5, a binary16 subnormal (between 2^-24 and 2^-14, IEEE 754-2019 §3.6): kept, not flushed
+    const result = checkOptimizer(adam(1e-3), plan("binary16", "binary32", "binary16"), prediction(1e-1));
+    expect(result.reasons.join(" ")).not.toMatch(/second moments of .* flush/);
+    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 5.96e-8 (2^-24; training.optimizer.epsilon: 5.96e-8)");
+  });
+
   it("with subnormals flushed, the epsilon to raise to is binary16's smallest normal, rounded up", () => {
     const result = checkOptimizer(adam(1e-3), plan("binary16", "binary32", "binary16", true), prediction());
     // binary16's smallest normal is 2^-14 = 6.1035e-5 (IEEE 754-2019); 6.10e-5 would flush, 6.11e-5 does not
-    expect(result.remedies).toContain("compute the update in binary32, or raise epsilon to at least 6.11e-5 (just above 2^-14; training.optimizer.epsilon: 6.11e-5)");
+    expect(result.remedies.some((r) => r.startsWith("compute the update in binary32, or raise epsilon to at least 6.11e-5 (just above 2^-14; training.optimizer.epsilon: 6.11e-5)"))).toBe(true);
     expect(roundTo(getFormat("binary16"), 6.11e-5, { flushSubnormals: true })).toBeGreaterThan(0);
     expect(roundTo(getFormat("binary16"), 6.1e-5, { flushSubnormals: true })).toBe(0);
   });
