@@ -17,6 +17,7 @@ import type {
 } from "../magnitude/types.js";
 import { gradientContributions, gradientSumFormat } from "../spec/normalize.js";
 import { lossScaleProblem } from "../spec/limits.js";
+import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
@@ -313,7 +314,7 @@ export function storedTensors(prediction: Prediction, plan: PrecisionPlan): read
   if (sites.size === 0) return prediction.tensors;
   return prediction.tensors.map((t) => {
     const site = t.role === "weight-gradient" ? sites.get(t.id) : undefined;
-    return site === undefined ? t : { ...t, start: site.input, end: site.end?.input ?? site.input };
+    return site === undefined ? t : withProfiles(t, site.input, site.end?.input ?? site.input);
   });
 }
 

@@ -4,6 +4,7 @@
  * Shared by the operation hazards (./hazards.ts) and the optimizer check (src/scale/optimizer.ts) so that one
  * problem gets one severity. Not part of the public API.
  */
+import { withProfiles } from "../magnitude/copy.js";
 import type { HazardSite, MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { fractionBelow, nonzeroElements, scaleProfile } from "./profile.js";
 import { FORMATS, roundTo } from "../formats/index.js";
@@ -201,7 +202,7 @@ export function clippedBy(weightGradients: readonly TensorPrediction[], clip: Re
   const out: TensorPrediction[] = [];
   for (let i = 0; i < weightGradients.length; i++) {
     const t = weightGradients[i] as TensorPrediction;
-    out.push({ ...t, start: scaleProfile(t.start, clip.start?.factor ?? 1), end: scaleProfile(t.end, clip.end?.factor ?? 1) });
+    out.push(withProfiles(t, scaleProfile(t.start, clip.start?.factor ?? 1), scaleProfile(t.end, clip.end?.factor ?? 1)));
   }
   return out;
 }
