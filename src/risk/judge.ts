@@ -21,9 +21,25 @@ import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, type HazardContext } from "./hazards.js";
-import { rangeLimits } from "./profile.js";
+import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
-import { LOSS_SCALED_ROLES, lossScaleFactor, overflowAtRiskThreshold, scaledTensor, scaledTensorRisk, type ScaledTensor, type TensorFormatRisk, type TensorRiskOptions, type TensorStatistics } from "./tensor.js";
+import {
+  isProbabilityRow,
+  LOSS_SCALED_ROLES,
+  lossScaleFactor,
+  overflowAtRiskThreshold,
+  riskProfile,
+  scaledTensor,
+  scaledTensorRisk,
+  worstVerdict,
+  type ScaledTensor,
+  type TensorFormatRisk,
+  type TensorRiskOptions,
+  type TensorStatistics,
+} from "./tensor.js";
+import { decidedFindings } from "./decide.js";
+import { noFindings } from "./tensor-finding.js";
+import { CheckedRisk, CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -507,12 +523,12 @@ function judgeTensors(
   const arrays = storedArrays(predicted);
   for (let i = 0; i < predicted.length; i++) {
     const tensor = predicted[i] as TensorPrediction;
-    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays);
-    tensors.push(ledger ? withLedger(check, tensor.ledger) : check);
+    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays, ledger);
+    tensors.push(check);
     // each format's findings and count gathered here, in tensor order, rather than by a walk over every tensor per format
     const risks = check.risks;
     for (let j = 0; j < risks.length; j++) {
-      const risk = risks[j] as TensorFormatRisk;
+      const risk = risks[j] as TensorCheckRisk;
       let setting = settings[0] as FormatSetting;
       for (let k = 1; setting.format !== risk.format && k < settings.length; k++) setting = settings[k] as FormatSetting;
       const found = risk.findings;
@@ -555,6 +571,12 @@ function withArrayMax(scaled: ScaledTensor, parts: readonly TensorPrediction[], 
 // the format risks of the tensor being judged (its first entries), before they are copied out
 const RISKS: TensorCheckRisk[] = [];
 
+/**
+ * One tensor in every judged format that holds it (every judged format with `everyFormat`). Its findings and verdicts
+ * are decided here, by bounds where they decide (src/risk/decide.ts); its statistics and numbers are worked out when
+ * first read (src/risk/tensor-check.ts), except where the findings were judged from them (they are kept) or a stored
+ * array, scale factors, a probability row or another format's loss scale is involved (worked out here, as before).
+ */
 function judgeTensor(
   tensor: TensorPrediction,
   settings: readonly FormatSetting[],
@@ -562,10 +584,18 @@ function judgeTensor(
   thresholds: RiskThresholds,
   everyFormat: boolean,
   arrays: Map<string, TensorPrediction[]> | null,
+  ledger = false,
 ): TensorCheck {
   const parts = arrays?.get(tensor.id);
-  const ownScaled = scaledTensor(tensor, lossScale, thresholds);
-  const scaled = parts === undefined ? ownScaled : withArrayMax(ownScaled, parts, tensor, thresholds);
+  // a part of a stored array is judged with the array's max, which its statistics carry: worked out here
+  let scaled = parts === undefined ? undefined : withArrayMax(scaledTensor(tensor, lossScale, thresholds), parts, tensor, thresholds);
+  const checked = new CheckedTensor(tensor, lossScale, thresholds, scaled, ledger);
+  const factor = lossScaleFactor(tensor.role, lossScale);
+  const same = sameDistribution(tensor.start, tensor.end);
+  // the profiles the bounds read, after the loss-scale factor (made when a format first needs them)
+  let start: MagnitudeProfile | undefined;
+  let end: MagnitudeProfile | undefined;
+  const bounded = parts === undefined && !isProbabilityRow(tensor);
   // a format judged at another loss scale sees the tensor scaled by its own (gradients only; the rest are unscaled)
   let other: ScaledTensor | undefined;
   // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
@@ -577,57 +607,56 @@ function judgeTensor(
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
-    const judged = setting.evaluated[entry] === setting.format;
+    const judged = heldIn(setting.evaluated, entry) === setting.format;
     if (!judged && !everyFormat) continue;
+    const options = judged ? setting.held : setting.notHeld;
     let risk: TensorCheckRisk;
-    if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === scaled.statistics.factor) {
-      risk = scaledTensorRisk(tensor, scaled, setting.limits, judged ? setting.held : setting.notHeld);
+    if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === factor) {
+      let findings: Finding[] | null = null;
+      if (!options.perTensorScaling) {
+        if (!judged) findings = noFindings();
+        else if (bounded) {
+          start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
+          end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
+          findings = decidedFindings(tensor, start, end, same, setting.limits, options);
+        }
+      }
+      risk =
+        findings !== null
+          ? new CheckedRisk(judged, worstVerdict(findings), findings, checked, setting.limits, options)
+          : scaledTensorRisk(tensor, (scaled ??= CheckedTensor.scaled(checked)), setting.limits, options);
     } else {
       if (other === undefined || other.statistics.factor !== setting.lossScale) {
         other = scaledTensor(tensor, setting.lossScale, thresholds);
         if (parts !== undefined) other = withArrayMax(other, parts, tensor, thresholds);
       }
-      risk = { ...scaledTensorRisk(tensor, other, setting.limits, judged ? setting.held : setting.notHeld), statistics: other.statistics };
+      risk = { ...scaledTensorRisk(tensor, other, setting.limits, options), statistics: other.statistics };
     }
     RISKS[count++] = risk;
     verdict = worseVerdict(verdict, risk.verdict);
   }
-  const risks = RISKS.slice(0, count);
-  // two literals rather than a spread of the optional key: properties after a spread are added one by one, outside the
-  // object's own slots (a second allocation per tensor); `partOf` keeps its place after `source`
-  if (tensor.partOf !== undefined) {
-    return {
-      id: tensor.id,
-      layer: tensor.layer,
-      layerIndex: tensor.layerIndex,
-      family: tensor.family,
-      role: tensor.role,
-      slot: tensor.slot,
-      shape: tensor.shape,
-      source: tensor.source,
-      partOf: tensor.partOf,
-      start: tensor.start,
-      end: tensor.end,
-      statistics: scaled.statistics,
-      risks,
-      verdict,
-    };
+  // most tensors are held in one format: a literal of one is the smallest array
+  checked.risks = count === 1 ? [RISKS[0] as TensorCheckRisk] : RISKS.slice(0, count);
+  checked.verdict = verdict;
+  return checked;
+}
+
+// the format a plan holds an entry in, by named fields (a look-up by a key that varies is a slow one per tensor)
+function heldIn(plan: PrecisionPlan, entry: PlanEntry): FormatName | undefined {
+  switch (entry) {
+    case "activations":
+      return plan.activations;
+    case "weights":
+      return plan.weights;
+    case "gradients":
+      return plan.gradients;
+    case "optimizerStates":
+      return plan.optimizerStates;
+    case "accumulate":
+      return plan.accumulate;
+    case "gradientSums":
+      return plan.gradientSums;
   }
-  return {
-    id: tensor.id,
-    layer: tensor.layer,
-    layerIndex: tensor.layerIndex,
-    family: tensor.family,
-    role: tensor.role,
-    slot: tensor.slot,
-    shape: tensor.shape,
-    source: tensor.source,
-    start: tensor.start,
-    end: tensor.end,
-    statistics: scaled.statistics,
-    risks,
-    verdict,
-  };
 }
 
 // per setting, the hazard context of its plan (settings judged under the same plan share one)
@@ -826,12 +855,6 @@ function judgeFormat(
     tensorsJudged,
     findings,
   };
-}
-
-// the ledger sits after `end`, where the result's readers (and the JSON output) have always found it
-function withLedger(check: TensorCheck, ledger: LedgerEntry[] | undefined): TensorCheck {
-  const { statistics, risks, verdict, ...head } = check;
-  return { ...head, ledger, statistics, risks, verdict };
 }
 
 function hazardContext(

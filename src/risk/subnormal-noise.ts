@@ -6,6 +6,7 @@
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
+import { normalLogSf } from "../numeric/normal.js";
 import { elementLaw, isConstantLike, isEmpty, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
@@ -34,8 +35,16 @@ export function precisionOf(limits: Pick<RangeLimits, "unitRoundoff">): number {
  * format's own normal rounding noise (a coarser format already pays more on every element).
  */
 export function subnormalNoiseLimit(limits: Pick<RangeLimits, "unitRoundoff">, atRisk: number): number {
-  return Math.max(atRisk, normalRoundingNoise(precisionOf(limits)));
+  // asked tensor after tensor for the same format and threshold: the last answer kept
+  if (limits.unitRoundoff !== LIMIT_ASKED[0] || atRisk !== LIMIT_ASKED[1]) {
+    LIMIT_ASKED[0] = limits.unitRoundoff;
+    LIMIT_ASKED[1] = atRisk;
+    LIMIT_ASKED[2] = Math.max(atRisk, normalRoundingNoise(precisionOf(limits)));
+  }
+  return LIMIT_ASKED[2] as number;
 }
+// the unit roundoff and threshold last asked of subnormalNoiseLimit, and its answer
+const LIMIT_ASKED = new Float64Array(3).fill(Number.NaN);
 
 /**
  * The expected rounding noise of a tensor's subnormal elements as a share of its squared norm, over draws of its scale:
@@ -74,6 +83,46 @@ export function noiseBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, 
   const spread = 3 * profile.log2Spread * LN2;
   return ((density * limits.minNormal * limits.smallest * limits.smallest) / (12 * profile.rms ** 3)) * Math.exp((spread * spread) / 2);
 }
+
+/**
+ * Whether {@link subnormalNoise} is at most `limit`: by {@link noiseWithin} at half of it (the noise is computed within
+ * 2e-7 of its integral's shares, far inside the other half), else by the number itself, so the answer is always the
+ * comparison of the number.
+ */
+export function noiseAtMost(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">, limit: number): boolean {
+  return noiseWithin(profile, limits, limit / 2) || subnormalNoise(profile, limits) <= limit;
+}
+
+/**
+ * Whether the subnormal noise's draw integral is at most `target`, by bounds; false where they do not tell. A Gaussian
+ * magnitude's density is at most c/r, c = √(2/π), so the band's share per draw is at most min(1, c·h/r), h the smallest
+ * normal, and the noise share Δ²/(12r²) times that. Its mean over r = rms·2^{S·z}: without the cap {@link noiseBound};
+ * with it, Δ²/(12·rms²)·(e^{2m²}·Φ(z* + 2m) + k·e^{9m²/2}·Q(z* + 3m)), k = c·h/rms, m = S·ln 2, z* = ln(k)/m (complete
+ * the square on each side of z*, where k·e^{−m·z} = 1).
+ */
+export function noiseWithin(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">, target: number): boolean {
+  if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return true;
+  const shape = profile.shape;
+  if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return noiseBound(profile, limits) <= target;
+  const h = limits.minNormal;
+  // a bound under the smallest normal puts mass at the bound, inside the band: no density there
+  const bound = profile.bound;
+  if (bound !== undefined && bound > 0 && bound < h) return false;
+  const rms = profile.rms;
+  const delta = limits.smallest;
+  const spread = profile.log2Spread;
+  const m = spread > 0 ? spread * LN2 : 0;
+  const scale = (delta * delta) / (12 * rms * rms);
+  const k = (GAUSSIAN_DENSITY * h) / rms;
+  if (!(m > 0)) return scale * Math.min(1, k) <= target;
+  if (scale * k * Math.exp(4.5 * m * m) <= target) return true;
+  const logK = Math.log(k);
+  const crossing = logK / m;
+  const capped = Math.exp(2 * m * m + normalLogSf(-(crossing + 2 * m)));
+  const tail = Math.exp(logK + 4.5 * m * m + normalLogSf(crossing + 3 * m));
+  return scale * (capped + tail) <= target;
+}
+const GAUSSIAN_DENSITY = Math.sqrt(2 / Math.PI);
 
 // The same profile meets the same band again and again (each loss scale a search tries, each check of a batch that
 // shares layers): a direct-mapped table on the bits of everything the integral reads returns its earlier result, a

@@ -20,10 +20,11 @@ import type { BlockScaledRisk } from "./blocks.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { isEmpty, nonzeroElements } from "./laws.js";
-import { smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
+import { noiseAtMost, smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
 import { binades, percent, plainNumber, scaleWords, sentenceStart, when } from "./words.js";
+import { FOUND, overflowRiskFinding } from "./tensor-finding.js";
 import { normalCdf } from "./_math.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
@@ -197,24 +198,38 @@ export function tensorFormatRisk(
   return scaledTensorRisk(tensor, { statistics, start, end, same }, limits, options);
 }
 
-/** {@link tensorFormatRisk} from a {@link scaledTensor}: the same numbers, without scaling the profiles again. */
-export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
+/** The numbers of a tensor in one format: those of {@link TensorFormatRisk} that its findings are judged from. */
+export interface TensorRiskNumbers {
+  scaleLog2: { start: number; end: number };
+  start: TensorProfileRisk;
+  end: TensorProfileRisk;
+  worst: WorstRisk;
+}
+
+/** The numbers of {@link scaledTensorRisk}, without its findings (what a tensor's risk read later works out). */
+export function scaledTensorNumbers(scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorRiskNumbers {
   const { statistics } = scaled;
   const start = evaluate(scaled.start, statistics.start, statistics.arrayMax?.start ?? statistics.start.max, limits, options);
   const startScaleLog2 = evaluatedScaleLog2;
   const end = scaled.same && statistics.arrayMax?.start === statistics.arrayMax?.end ? start : evaluate(scaled.end, statistics.end, statistics.arrayMax?.end ?? statistics.end.max, limits, options);
   const endScaleLog2 = evaluatedScaleLog2;
-  const worst = worseOf(start, end);
+  return { scaleLog2: { start: startScaleLog2, end: endScaleLog2 }, start, end, worst: worseOf(start, end) };
+}
+
+/** {@link tensorFormatRisk} from a {@link scaledTensor}: the same numbers, without scaling the profiles again. */
+export function scaledTensorRisk(tensor: TensorPrediction, scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorFormatRisk {
+  const numbers = scaledTensorNumbers(scaled, limits, options);
+  const { scaleLog2, start, end, worst } = numbers;
   let mass: FlushedMass | null = null;
   if (isProbabilityRow(tensor)) {
-    const first = rowMass(scaled.start, startScaleLog2, start, limits);
-    mass = { start: first, end: scaled.same && startScaleLog2 === endScaleLog2 ? first : rowMass(scaled.end, endScaleLog2, end, limits) };
+    const first = rowMass(scaled.start, scaleLog2.start, start, limits);
+    mass = { start: first, end: scaled.same && scaleLog2.start === scaleLog2.end ? first : rowMass(scaled.end, scaleLog2.end, end, limits) };
   }
   const findings = tensorFindings(tensor, limits, worst, start, end, options, mass, scaled);
   return {
     format: limits.format,
     judged: options.judged,
-    scaleLog2: { start: startScaleLog2, end: endScaleLog2 },
+    scaleLog2,
     start,
     end,
     worst,
@@ -399,13 +414,11 @@ function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "
   return null;
 }
 
+
 // where a share is larger; on a tie, the moment of the worst flushed energy
 function moreAt(start: number, end: number, tie: "start" | "end"): "start" | "end" {
   return end > start ? "end" : start > end ? "start" : tie;
 }
-
-// the findings of the tensor being judged (its first entries), before they are copied out
-const FOUND: Finding[] = [];
 
 function tensorFindings(
   tensor: TensorPrediction,
@@ -428,26 +441,13 @@ function tensorFindings(
   const subject = tensor.id;
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
   // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
-  // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed
+  // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed; the
+  // overflow's, the commonest, joins the subject and its value to two pieces every tensor shares (overflowRiskFinding)
   // a block whose scale is clamped at 2^127 is clipped without the per-tensor rule's bound: no leeway for it
   const overflowAtRisk = overflowAtRiskThreshold(t, options.perTensorScaling && !options.blockScaling && limits.saturates);
   const overflow = grade(worst.overflowRisk, overflowAtRisk, t.overflowFails);
   if (overflow !== null) {
-    const threshold = overflow === "fails" ? t.overflowFails : overflowAtRisk;
-    findings[found++] = {
-      format,
-      subject,
-      source: "tensor",
-      kind: limits.saturates ? "saturation" : "overflow",
-      severity: overflow,
-      value: worst.overflowRisk,
-      threshold,
-      at: worst.overflowAt,
-      sentence: [
-        subject, limits.saturates ? " saturates " : " overflows ", format, " with probability ", plainNumber(worst.overflowRisk),
-        " per step ", when(worst.overflowAt), " (limit ", plainNumber(threshold), ").",
-      ].join(""),
-    };
+    findings[found++] = overflowRiskFinding(subject, limits, overflow, worst.overflowRisk, overflow === "fails" ? t.overflowFails : overflowAtRisk, worst.overflowAt);
   } else if (!options.perTensorScaling && worst.headroom !== null && worst.headroom < t.headroomAtRisk) {
     findings[found++] = {
       format,
@@ -572,10 +572,11 @@ function subnormalRemedy(
   }
   const headroom = worst.headroom ?? 0;
   const most = Math.floor(headroom - options.thresholds.headroomAtRisk);
+  // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
   const lift = smallestStep(most, (j) => {
     const factor = 2 ** j;
-    if (subnormalNoise(riskProfile(scaled.start, factor), limits) > limit) return false;
-    return scaled.same || subnormalNoise(riskProfile(scaled.end, factor), limits) <= limit;
+    if (!noiseAtMost(riskProfile(scaled.start, factor), limits, limit)) return false;
+    return scaled.same || noiseAtMost(riskProfile(scaled.end, factor), limits, limit);
   });
   const factor = scaled.statistics.factor;
   if (lift === null) {

@@ -1,0 +1,153 @@
+/**
+ * The tensors of a check result, with their numbers worked out when first read. A check decides every tensor's
+ * findings and verdicts at once (src/risk/decide.ts settles most of them by bounds), but most of the numbers beside them
+ * (statistics, each format's start, end and worst risks) are read by nobody but a JSON or explain output, or a table of
+ * the few tensors at risk: a 1,000-layer check holds 8,000 profiles of them. Here a tensor's `statistics` and a risk's
+ * `start`, `end` and `worst` are worked out on their first read, by the same calls the check made before (scaledTensor,
+ * scaledTensorNumbers), so every value read, and JSON.stringify of the result, is what working them out at once gave:
+ * the calls are pure, and their tables never depend on what was computed before.
+ *
+ * They are the objects' own enumerable properties (accessors, in the documented order), so the result stays plain data
+ * to every reader: JSON, `Object.keys`, a spread, a deep comparison and structuredClone read them as any other field.
+ * A field assigned becomes a plain data field. The numbers are worked out from the prediction's profiles (the tensor's
+ * `start` and `end`): a caller who changes those before the first read sees the change, as with a prediction's ledgers.
+ */
+import type { LedgerEntry, MagnitudeProfile, PlanSlot, TensorPrediction, TensorRole } from "../magnitude/types.js";
+import type { FormatName } from "../formats/names.js";
+import type { LayerFamily } from "../spec/types.js";
+import type { TensorCheck, TensorCheckRisk } from "./judge.js";
+import {
+  scaledTensor,
+  scaledTensorNumbers,
+  type ScaledTensor,
+  type TensorProfileRisk,
+  type TensorRiskNumbers,
+  type TensorRiskOptions,
+  type TensorStatistics,
+  type WorstRisk,
+} from "./tensor.js";
+import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+
+// An own enumerable accessor read through `read` (shared by every object, so they keep one layout); assigning the field
+// makes it a plain data field.
+function lazyField<T extends object>(key: string, read: (target: T) => unknown): PropertyDescriptor {
+  return {
+    get(this: T) {
+      return read(this);
+    },
+    set(this: T, value: unknown) {
+      Object.defineProperty(this, key, { value, writable: true, enumerable: true, configurable: true });
+    },
+    enumerable: true,
+    configurable: true,
+  };
+}
+
+/**
+ * A tensor of a check result ({@link TensorCheck}). Its `statistics` are worked out when first read, unless they were
+ * given (a data field then).
+ */
+export class CheckedTensor implements TensorCheck {
+  declare id: string;
+  declare layer: string;
+  declare layerIndex: number;
+  declare family: LayerFamily | "input" | "loss";
+  declare role: TensorRole;
+  declare slot: PlanSlot;
+  declare shape: number[];
+  declare source: "predicted" | "measured";
+  declare partOf?: string;
+  declare start: MagnitudeProfile;
+  declare end: MagnitudeProfile;
+  declare ledger?: LedgerEntry[];
+  declare statistics: TensorStatistics;
+  declare risks: TensorCheckRisk[];
+  declare verdict: Verdict;
+  #tensor: TensorPrediction;
+  #lossScale: number;
+  #thresholds: RiskThresholds;
+  #scaled: ScaledTensor | undefined;
+
+  /**
+   * `scaled`: the tensor's scaled profiles and statistics when already worked out (else worked out when first read,
+   * as scaledTensor(tensor, lossScale, thresholds)); `ledger`: whether the result keeps the tensor's ledger. The risks
+   * and verdict are set by the caller.
+   */
+  constructor(tensor: TensorPrediction, lossScale: number, thresholds: RiskThresholds, scaled: ScaledTensor | undefined, ledger: boolean) {
+    this.#tensor = tensor;
+    this.#lossScale = lossScale;
+    this.#thresholds = thresholds;
+    this.#scaled = scaled;
+    // the keys in the order of TensorCheck (README), `partOf` and `ledger` only where the result has always had them
+    this.id = tensor.id;
+    this.layer = tensor.layer;
+    this.layerIndex = tensor.layerIndex;
+    this.family = tensor.family;
+    this.role = tensor.role;
+    this.slot = tensor.slot;
+    this.shape = tensor.shape;
+    this.source = tensor.source;
+    if (tensor.partOf !== undefined) this.partOf = tensor.partOf;
+    this.start = tensor.start;
+    this.end = tensor.end;
+    if (ledger) this.ledger = tensor.ledger;
+    if (scaled === undefined) Object.defineProperty(this, "statistics", STATISTICS);
+    else this.statistics = scaled.statistics;
+    this.risks = NO_RISKS;
+    this.verdict = "fits";
+  }
+
+  /** The tensor's profiles after its loss-scale factor, with their statistics (worked out once). */
+  static scaled(tensor: CheckedTensor): ScaledTensor {
+    return (tensor.#scaled ??= scaledTensor(tensor.#tensor, tensor.#lossScale, tensor.#thresholds));
+  }
+}
+
+const STATISTICS = lazyField<CheckedTensor>("statistics", (tensor) => CheckedTensor.scaled(tensor).statistics);
+
+// the placeholder of a tensor's risks until they are judged (never handed out: judgeTensor sets its own array)
+const NO_RISKS: TensorCheckRisk[] = [];
+
+/**
+ * A tensor's risk in one format ({@link TensorCheckRisk}) whose findings were decided without its numbers: `start`, `end`
+ * and `worst` are worked out when first read, as scaledTensorNumbers of the tensor's scaled profiles. For a format
+ * without scale factors (`scaleLog2` is then 0 at both ends) at the tensor's own loss scale.
+ */
+export class CheckedRisk implements TensorCheckRisk {
+  declare format: FormatName;
+  declare judged: boolean;
+  declare scaleLog2: { start: number; end: number };
+  declare start: TensorProfileRisk;
+  declare end: TensorProfileRisk;
+  declare worst: WorstRisk;
+  declare verdict: Verdict;
+  declare findings: Finding[];
+  #tensor: CheckedTensor;
+  #limits: RangeLimits;
+  #options: TensorRiskOptions;
+  #numbers: TensorRiskNumbers | undefined;
+
+  constructor(judged: boolean, verdict: Verdict, findings: Finding[], tensor: CheckedTensor, limits: RangeLimits, options: TensorRiskOptions) {
+    this.#tensor = tensor;
+    this.#limits = limits;
+    this.#options = options;
+    this.#numbers = undefined;
+    this.format = limits.format;
+    this.judged = judged;
+    this.scaleLog2 = { start: 0, end: 0 };
+    Object.defineProperty(this, "start", START);
+    Object.defineProperty(this, "end", END);
+    Object.defineProperty(this, "worst", WORST);
+    this.verdict = verdict;
+    this.findings = findings;
+  }
+
+  /** The risk's numbers (worked out once). */
+  static numbers(risk: CheckedRisk): TensorRiskNumbers {
+    return (risk.#numbers ??= scaledTensorNumbers(CheckedTensor.scaled(risk.#tensor), risk.#limits, risk.#options));
+  }
+}
+
+const START = lazyField<CheckedRisk>("start", (risk) => CheckedRisk.numbers(risk).start);
+const END = lazyField<CheckedRisk>("end", (risk) => CheckedRisk.numbers(risk).end);
+const WORST = lazyField<CheckedRisk>("worst", (risk) => CheckedRisk.numbers(risk).worst);

@@ -1,0 +1,354 @@
+import { describe, expect, it } from "vitest";
+import * as fc from "fast-check";
+import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../../src/magnitude/types.js";
+import { erfc, normalPdf } from "../../src/numeric/normal.js";
+import { capWithin, decidedFindings } from "../../src/risk/decide.js";
+import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
+import { judgePrediction, limitsFor, planFor } from "../../src/risk/judge.js";
+import { noiseAtMost, noiseWithin, subnormalNoise } from "../../src/risk/subnormal-noise.js";
+import { riskProfile, tensorFormatRisk, tensorStatistics, type TensorRiskOptions } from "../../src/risk/tensor.js";
+import type { RangeLimits, RiskThresholds } from "../../src/risk/types.js";
+import { parseSpec } from "../../src/spec/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import { buildGraph } from "../../src/graph/index.js";
+import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+
+// src/risk/decide.ts decides a tensor's findings from bounds, and src/risk/tensor-check.ts works its numbers out when
+// first read. What they are held to: the findings tensorFormatRisk gives from the numbers themselves (the definition the
+// check used before), exactly, wherever the bounds decide; the numbers read, and JSON.stringify of the result, what
+// working them out at once gives; and each bound at least the draw integral it bounds, by an independent fine quadrature.
+
+// E_z[f(z)], z ~ N(0, 1): composite Simpson with step 1/64 on [−12, 12] (Abramowitz & Stegun 25.4.5), the mass beyond
+// ±12 (2e-33) left out
+function fineMean(f: (z: number) => number): number {
+  const steps = 24 * 64;
+  let sum = 0;
+  for (let i = 0; i <= steps; i++) {
+    const z = -12 + i / 64;
+    sum += (i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * normalPdf(z) * f(z);
+  }
+  return sum / 64 / 3;
+}
+
+// e5m2 and e4m3 (saturating) as the OCP 8-bit specification gives their ranges (OCP FP8 v1.0 Table 1): e5m2 largest
+// 57344, smallest normal 2^-14, smallest subnormal 2^-16; e4m3 largest 448, smallest normal 2^-6, subnormal 2^-9
+const E5M2: RangeLimits = {
+  format: "e5m2",
+  maxFinite: 57344,
+  overflowLevel: 61440,
+  saturates: false,
+  flushBound: 2 ** -17,
+  minNormal: 2 ** -14,
+  smallest: 2 ** -16,
+  unitRoundoff: 2 ** -3,
+};
+const E4M3_SATURATING: RangeLimits = {
+  format: "e4m3",
+  maxFinite: 448,
+  overflowLevel: 448,
+  saturates: true,
+  flushBound: 2 ** -10,
+  minNormal: 2 ** -6,
+  smallest: 2 ** -9,
+  unitRoundoff: 2 ** -4,
+};
+
+const ROLES: TensorRole[] = ["activation", "pre-activation", "weight", "activation-gradient", "weight-gradient"];
+
+// a side's profile: a Gaussian magnitude law, its rms anywhere from far under a format's subnormals to past its largest
+// value (so every threshold is met near and far), a spread from none to 4.5 binades
+const side = fc
+  .record({
+    shape: fc.constantFrom("gaussian" as const, "half-gaussian" as const, "bounded" as const),
+    log2Rms: fc.double({ min: -40, max: 24, noNaN: true }),
+    spread: fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 4.5, noNaN: true })),
+    log2Count: fc.double({ min: 0, max: 22, noNaN: true }),
+    zeroFraction: fc.oneof(fc.constant(0), fc.constant(1), fc.double({ min: 0, max: 0.9, noNaN: true })),
+    // the bound in binades above the rms (none: −1)
+    boundAbove: fc.oneof(fc.constant(-1), fc.constant(-1), fc.double({ min: 0, max: 12, noNaN: true })),
+  })
+  .map(
+    (x): MagnitudeProfile => ({
+      elements: Math.max(1, Math.floor(2 ** x.log2Count)),
+      zeroFraction: x.zeroFraction,
+      shape: x.shape,
+      rms: 2 ** x.log2Rms,
+      log2Spread: x.spread,
+      bound: x.boundAbove >= 0 ? 2 ** (x.log2Rms + x.boundAbove) : undefined,
+    }),
+  );
+
+// the end of the horizon: the start again (one distribution), moved by a few binades, or a profile of its own
+const tensors = fc
+  .record({ role: fc.constantFrom(...ROLES), start: side, end: side, kind: fc.constantFrom("same", "moved", "own"), moved: fc.double({ min: -6, max: 6, noNaN: true }) })
+  .map(({ role, start, end, kind, moved }): TensorPrediction => {
+    const last = kind === "same" ? start : kind === "moved" ? riskProfile(start, 2 ** moved) : end;
+    return { id: `dense-1/${role}`, layer: "dense-1", role, start, end: last } as unknown as TensorPrediction;
+  });
+
+// thresholds: the defaults, or each moved by up to 3 decades (so the bounds meet them at other levels)
+const thresholds = fc.oneof(
+  fc.constant(DEFAULT_THRESHOLDS),
+  fc
+    .record({ overflow: fc.double({ min: -3, max: 3, noNaN: true }), flushed: fc.double({ min: -3, max: 1, noNaN: true }), energy: fc.double({ min: -3, max: 2, noNaN: true }), noise: fc.double({ min: -3, max: 3, noNaN: true }), headroom: fc.double({ min: 0, max: 12, noNaN: true }) })
+    .map(
+      (m): RiskThresholds => ({
+        ...DEFAULT_THRESHOLDS,
+        overflowAtRisk: DEFAULT_THRESHOLDS.overflowAtRisk * 10 ** m.overflow,
+        flushedAtRisk: DEFAULT_THRESHOLDS.flushedAtRisk * 10 ** m.flushed,
+        energyAtRisk: DEFAULT_THRESHOLDS.energyAtRisk * 10 ** m.energy,
+        subnormalNoiseAtRisk: DEFAULT_THRESHOLDS.subnormalNoiseAtRisk * 10 ** m.noise,
+        headroomAtRisk: m.headroom,
+      }),
+    ),
+);
+
+describe("findings decided by bounds", () => {
+  it("are the findings tensorFormatRisk gives from the numbers, wherever the bounds decide them", () => {
+    let decided = 0;
+    let withFindings = 0;
+    let undecided = 0;
+    fc.assert(
+      fc.property(tensors, fc.constantFrom(BINARY16, BFLOAT16_FTZ, BINARY32, E5M2, E4M3_SATURATING), thresholds, (tensor, limits, t) => {
+        const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: t };
+        const same = tensor.start === tensor.end;
+        const found = decidedFindings(tensor, tensor.start, tensor.end, same, limits, options);
+        if (found === null) {
+          undecided++;
+          return;
+        }
+        decided++;
+        if (found.length > 0) withFindings++;
+        const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options);
+        expect(found).toEqual(full.findings);
+      }),
+      { numRuns: 2500 },
+    );
+    // most tensors are decided, some with an overflow finding, and some are left to their numbers
+    expect(decided).toBeGreaterThan(1500);
+    expect(withFindings).toBeGreaterThan(40);
+    expect(undecided).toBeGreaterThan(20);
+  });
+
+  it("are those findings where every threshold sits near the tensor's own numbers", () => {
+    let decided = 0;
+    fc.assert(
+      fc.property(
+        tensors,
+        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
+        fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
+        (tensor, limits, off) => {
+          // the numbers do not depend on the at-risk thresholds: each is set within 1.5 decades (binades for the
+          // headroom) of the worse end's number, so every bound meets its threshold where the decision is close
+          const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+          const worst = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst;
+          const near = (value: number, k: number, otherwise: number): number => (value > 0 && value < 1 ? value * 10 ** (off[k] as number) : otherwise);
+          const t: RiskThresholds = {
+            ...DEFAULT_THRESHOLDS,
+            overflowAtRisk: near(worst.overflowRisk, 0, DEFAULT_THRESHOLDS.overflowAtRisk),
+            overflowFails: 0.5,
+            flushedAtRisk: near(worst.flushedFraction, 1, DEFAULT_THRESHOLDS.flushedAtRisk),
+            energyAtRisk: near(worst.flushedEnergy, 2, DEFAULT_THRESHOLDS.energyAtRisk),
+            subnormalNoiseAtRisk: near(worst.subnormalNoise, 3, DEFAULT_THRESHOLDS.subnormalNoiseAtRisk),
+            headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
+          };
+          const options: TensorRiskOptions = { ...base, thresholds: t };
+          const found = decidedFindings(tensor, tensor.start, tensor.end, tensor.start === tensor.end, limits, options);
+          if (found === null) return;
+          decided++;
+          expect(found).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options).findings);
+        },
+      ),
+      { numRuns: 1500 },
+    );
+    expect(decided).toBeGreaterThan(300);
+  });
+
+  it("decide the headroom's finding where the predicted max meets the threshold", () => {
+    let cleared = 0;
+    let left = 0;
+    fc.assert(
+      fc.property(
+        side.filter((p) => p.rms > 0 && p.zeroFraction < 1),
+        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2),
+        fc.double({ min: 0.5, max: 10, noNaN: true }),
+        fc.double({ min: -0.4, max: 0.4, noNaN: true }),
+        (profile, limits, h, off) => {
+          // the profile moved so that its predicted max leaves h + off binades of headroom; overflow judged at a level
+          // no tensor with that headroom reaches, so the headroom is what decides
+          const t: RiskThresholds = { ...DEFAULT_THRESHOLDS, headroomAtRisk: h, overflowAtRisk: 1e-2, overflowFails: 0.5 };
+          const max = tensorStatistics({ role: "activation", start: profile, end: profile } as unknown as TensorPrediction, 1, t).start.max;
+          const start = riskProfile(profile, (limits.maxFinite * 2 ** -(h + off)) / max);
+          const tensor = { id: "dense-1/activation", layer: "dense-1", role: "activation", start, end: start } as unknown as TensorPrediction;
+          const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: t };
+          const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options);
+          const found = decidedFindings(tensor, start, start, true, limits, options);
+          if (found === null) left++;
+          else {
+            expect(found).toEqual(full.findings);
+            if (off < 0.1) cleared++;
+          }
+        },
+      ),
+      { numRuns: 800 },
+    );
+    // near the level too (within 0.1 binade of it) the bound or the max itself decides it
+    expect(cleared).toBeGreaterThan(50);
+    expect(left).toBeGreaterThan(50);
+  });
+
+  it("leave a tie of overflow probabilities, and laws other than the Gaussian's, to the numbers", () => {
+    const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+    const hot = { elements: 4096, zeroFraction: 0, shape: "gaussian" as const, rms: 2 ** 20, log2Spread: 0 };
+    const tie = { id: "a/activation", role: "activation", start: hot, end: { ...hot, elements: 8192 } } as unknown as TensorPrediction;
+    // both ends overflow with probability 1: which end is worse goes by the headroom
+    expect(tensorFormatRisk(tie, BINARY16, tensorStatistics(tie, 1, DEFAULT_THRESHOLDS), options).findings[0]?.value).toBe(1);
+    expect(decidedFindings(tie, tie.start, tie.end, false, BINARY16, options)).toBeNull();
+    const uniform = { ...hot, rms: 1, shape: "uniform" as const };
+    const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
+    expect(decidedFindings(other, uniform, uniform, true, BINARY16, options)).toBeNull();
+    // and decide a Gaussian one far inside every limit, with no finding
+    const calm = { ...hot, rms: 1 };
+    const fits = { id: "a/activation", role: "activation", start: calm, end: calm } as unknown as TensorPrediction;
+    expect(decidedFindings(fits, calm, calm, true, BINARY16, options)).toEqual([]);
+  });
+});
+
+describe("the bounds", () => {
+  it("capWithin: E[min(1, c·e^(−m·z))] is at most the target wherever it says so", () => {
+    fc.assert(
+      fc.property(fc.double({ min: -40, max: 5, noNaN: true }), fc.double({ min: 0, max: 6, noNaN: true }), fc.double({ min: -12, max: 0, noNaN: true }), (log10C, m, log10Target) => {
+        const c = 10 ** log10C;
+        const target = 10 ** log10Target;
+        const exact = fineMean((z) => Math.min(1, c * Math.exp(-m * z)));
+        if (capWithin(c, m, target)) expect(exact).toBeLessThanOrEqual(target * (1 + 1e-9) + 1e-300);
+        // the exact form past the first bound: what is within half the target is told so
+        if (exact <= target / 2) expect(capWithin(c, m, target)).toBe(true);
+      }),
+      { numRuns: 400 },
+    );
+  });
+
+  it("noiseWithin: the subnormal noise's draw integral is at most the target wherever it says so", () => {
+    // the noise's definition (src/risk/subnormal-noise.ts): per draw r, P(flush bound < |x| < h − Δ/2 | r)·Δ²/(12r²), Δ the
+    // smallest subnormal (IEEE 754-2019 §3.3), for Gaussian magnitudes P(|x| ≤ t | r) = erf(t/(r√2)) (A&S 7.1.1, 26.2.29)
+    const gaussianBelow = (r: number, t: number): number => 1 - erfc(t / (r * Math.SQRT2));
+    let told = 0;
+    fc.assert(
+      fc.property(side, fc.constantFrom(BINARY16, E5M2, E4M3_SATURATING), fc.double({ min: -14, max: -3, noNaN: true }), (profile, limits, log10Target) => {
+        const target = 10 ** log10Target;
+        if (!noiseWithin(profile, limits, target)) return;
+        told++;
+        const delta = limits.smallest;
+        const high = limits.minNormal - delta / 2;
+        const bound = profile.bound;
+        const nonzero = profile.rms > 0 && profile.elements * (1 - profile.zeroFraction) > 0;
+        const exact = !nonzero
+          ? 0
+          : fineMean((z) => {
+              const r = profile.rms * 2 ** (profile.log2Spread * z);
+              const below = (t: number) => (bound !== undefined && t >= bound ? 1 : gaussianBelow(r, t));
+              return (Math.max(0, below(high) - below(limits.flushBound)) * delta * delta) / 12 / (r * r);
+            });
+        expect(exact).toBeLessThanOrEqual(target * (1 + 1e-6));
+      }),
+      { numRuns: 600 },
+    );
+    expect(told).toBeGreaterThan(100);
+  });
+
+  it("noiseAtMost is the comparison of the noise itself with the limit", () => {
+    let bounded = 0;
+    fc.assert(
+      fc.property(side, fc.constantFrom(BINARY16, E5M2, E4M3_SATURATING), fc.double({ min: -10, max: -3, noNaN: true }), (profile, limits, log10Limit) => {
+        const limit = 10 ** log10Limit;
+        expect(noiseAtMost(profile, limits, limit)).toBe(subnormalNoise(profile, limits) <= limit);
+        if (noiseWithin(profile, limits, limit / 2) && subnormalNoise(profile, limits) > 0) bounded++;
+      }),
+      { numRuns: 1500 },
+    );
+    // the bounds decide some with a band of subnormals, not only the empty ones
+    expect(bounded).toBeGreaterThan(50);
+  });
+});
+
+// squared error: no tensor shares a stored array (whose parts carry the array's max, as the reference below does not)
+const SPEC = `name: lazy
+input: { features: 64 }
+training:
+  batch: 32
+  loss: { kind: mean-squared-error }
+  horizon: { steps: 1000, weight-growth: 3 }
+precision:
+  activations: binary16
+  weights: binary16
+  gradients: binary16
+  optimizer-states: binary16
+  accumulate: binary32
+layers:
+  - type: dense
+    width: 64
+  - relu
+  - type: dense
+    width: 64
+  - tanh
+  - type: dense
+    width: 10
+`;
+
+describe("a result whose numbers are worked out when first read", () => {
+  const parsed = parseSpec(SPEC, "lazy.yaml");
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  const spec = parsed.spec;
+  const built = buildGraph(spec);
+  if (!built.ok) throw new Error("graph");
+  const prediction = predict(built.graph, spec);
+  // bfloat16 and binary32 not in the plan: judged holding its reduced entries, or every tensor reported in them
+  const options = { lossScale: 2 ** 10, everyFormat: true, formats: ["binary16", "bfloat16", "binary32"] as const };
+
+  // every tensor's statistics and risks as tensorStatistics and tensorFormatRisk give them at once (the definition)
+  function eager(): unknown[] {
+    return prediction.tensors.map((t) => {
+      const statistics = tensorStatistics(t, 2 ** 10, DEFAULT_THRESHOLDS);
+      return {
+        statistics,
+        risks: options.formats.map((format) => {
+          const plan = planFor(spec.precision, format);
+          const entry = t.role === "loss" ? "accumulate" : t.slot;
+          return tensorFormatRisk(t, limitsFor(plan, format), statistics, { judged: plan[entry] === format, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS });
+        }),
+      };
+    });
+  }
+
+  it("reads the numbers of the definition, in whichever order they are read, as JSON and as fields", () => {
+    const expected = JSON.stringify(eager());
+    const first = judgePrediction(spec, prediction, { ...options, formats: [...options.formats] });
+    // risks first, the worst before the ends, then the statistics
+    for (const t of first.tensors) for (const r of t.risks) void [r.worst.overflowRisk, r.end.footroom, r.start.headroom];
+    expect(JSON.stringify(first.tensors.map((t) => ({ statistics: t.statistics, risks: t.risks })))).toBe(expected);
+    // the statistics first, then JSON alone
+    const second = judgePrediction(spec, prediction, { ...options, formats: [...options.formats] });
+    for (const t of second.tensors) void t.statistics.end.max;
+    expect(JSON.stringify(second.tensors.map((t) => ({ statistics: t.statistics, risks: t.risks })))).toBe(expected);
+    expect(JSON.stringify(judgePrediction(spec, prediction, { ...options, formats: [...options.formats] }))).toBe(JSON.stringify(first));
+  });
+
+  it("stays plain data: the fields are the objects' own, in the documented order, and an assigned one is kept", () => {
+    const result = judgePrediction(spec, prediction, { ...options, formats: [...options.formats] });
+    const tensor = result.tensors[1]!;
+    expect(Object.keys(tensor)).toEqual(["id", "layer", "layerIndex", "family", "role", "slot", "shape", "source", "start", "end", "statistics", "risks", "verdict"]);
+    expect(Object.keys(tensor.risks[0]!)).toEqual(["format", "judged", "scaleLog2", "start", "end", "worst", "verdict", "findings"]);
+    // a copy by spread or by structuredClone holds every number
+    const spread = { ...tensor.risks[0]! };
+    expect(JSON.stringify(spread)).toBe(JSON.stringify(tensor.risks[0]));
+    expect(structuredClone(result)).toEqual(JSON.parse(JSON.stringify(result)));
+    // one object per field, read as often as it is read
+    expect(tensor.statistics).toBe(tensor.statistics);
+    expect(tensor.risks[0]!.worst).toBe(tensor.risks[0]!.worst);
+    const worst = { ...tensor.risks[0]!.worst, overflowRisk: 0.5 };
+    tensor.risks[0]!.worst = worst;
+    expect(tensor.risks[0]!.worst).toBe(worst);
+    expect(Object.keys(tensor.risks[0]!)).toEqual(["format", "judged", "scaleLog2", "start", "end", "worst", "verdict", "findings"]);
+  });
+});
