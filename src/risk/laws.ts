@@ -223,6 +223,8 @@ function baseLaw(profile: MagnitudeProfile): ElementLaw {
 // take their own rules: the any-above sums (anyAboveSum) and the panels of stepwiseSum.
 const DRAW_LIMIT = 9;
 const DRAW_STEP = 1 / 8;
+/** spreads below this many binades are taken as none by the level searches (lawMixtureCrossing) */
+const NEGLIGIBLE_SPREAD = 1e-16;
 const DRAW_NODES: { z: Float64Array; w: Float64Array } = (() => {
   const count = Math.round((2 * DRAW_LIMIT) / DRAW_STEP) + 1;
   const z = new Float64Array(count);
@@ -1371,6 +1373,10 @@ export function mixtureCrossing(g: (v: number) => number, spread: number, p: num
  * binade of the search, see levelTableValue), which `viaRows` false leaves aside.
  */
 export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-above" | "below", p: number, viaRows = true): number {
+  // a spread far below any level's resolution is none: the lattice's steps (spread/8 apart) need ever more of them to
+  // reach the crossing (0.2 s at a spread of 1e-21; 1e-23 did not return); under 1e-16 binade the levels move by less
+  // than 1e-15 binade (the draws' quantiles lie within ±6 spreads)
+  if (profile.log2Spread > 0 && profile.log2Spread < NEGLIGIBLE_SPREAD) return lawMixtureCrossing({ ...profile, log2Spread: 0 }, measure, p, viaRows);
   const kind = measure === "any-above" ? ANY_ABOVE : BELOW;
   const decreasing = kind === ANY_ABOVE;
   // the bound's verdict is ignored: the levels are solved without it
