@@ -1096,7 +1096,8 @@ function rankRemedies(
       extraBytes: extra,
       sentence: current.empty
         ? `Holding ${held.join(", ")} in binary32 does not open a window.`
-        : `Hold ${held.join(", ")} in binary32: the window becomes 2^${current.lowestLog2} to 2^${current.highestLog2}, pick 2^${current.pickLog2} (${formatBytes(extra)} more per step).`,
+        : // a plan sets one format per role: no spec key holds a chosen tensor apart, so the sentence says where it is done
+          `Hold ${held.join(", ")} in binary32: the window becomes 2^${current.lowestLog2} to 2^${current.highestLog2}, pick 2^${current.pickLog2} (${formatBytes(extra)} more per step). No spec key states a format for one tensor (a plan sets one per role): this is done in the training code, and check keeps judging the plan as written.`,
     });
   }
   // 2. a dynamic scale, with its simulated skip rate

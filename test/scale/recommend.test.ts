@@ -83,6 +83,8 @@ describe("lossScaleAnswer", () => {
     expect(working[0]!.kind).toBe("hold-in-binary32");
     expect(working[0]!.tensors).toEqual(["tiny/activation-gradient"]);
     expect(working[0]!.window!.unscaledFits).toBe(true);
+    // no spec key holds one tensor in binary32: the remedy says where it is done instead of naming a key
+    expect(working[0]!.sentence).toMatch(/No spec key states a format for one tensor \(a plan sets one per role\): this is done in the training code/);
   });
 
   it("says no scale is needed when S = 1 lies in the window only once 1 is judged to leave no more findings than the pick", () => {
