@@ -709,15 +709,17 @@ class OverflowNarrowing implements OverflowBounds {
     private readonly lead: { index: number } = { index: -1 },
   ) {
     const n = point.n;
-    this.lows = new Float64Array(n);
-    this.highs = new Float64Array(n);
     this.state = new Uint8Array(n);
     this.levelLog2 = Math.log2(level);
     let size = 1;
     while (size < n) size *= 2;
     this.size = size;
-    this.lowFactors = new Float64Array(2 * size).fill(1);
-    this.highFactors = new Float64Array(2 * size).fill(1);
+    // the bounds and both trees in one buffer (one allocation per scale and point)
+    const buffer = new ArrayBuffer(8 * (2 * n + 4 * size));
+    this.lows = new Float64Array(buffer, 0, n);
+    this.highs = new Float64Array(buffer, 8 * n, n);
+    this.lowFactors = new Float64Array(buffer, 16 * n, 2 * size).fill(1);
+    this.highFactors = new Float64Array(buffer, 16 * n + 16 * size, 2 * size).fill(1);
   }
 
   // the trees from the bounds, once they are first set
