@@ -11,7 +11,8 @@ import type { RangeLimits, RiskThresholds } from "../../src/risk/types.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { buildGraph } from "../../src/graph/index.js";
-import { BFLOAT16_FTZ, BINARY16, BINARY32 } from "./limits.js";
+// e5m2 and e4m3 (saturating) from the OCP 8-bit specification (OFP8 v1.0, Table 1), with the other formats
+import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_SATURATING, E5M2 } from "./limits.js";
 
 // src/risk/decide.ts decides a tensor's findings from bounds, and src/risk/tensor-check.ts works its numbers out when
 // first read. What they are held to: the findings tensorFormatRisk gives from the numbers themselves (the definition the
@@ -29,29 +30,6 @@ function fineMean(f: (z: number) => number): number {
   }
   return sum / 64 / 3;
 }
-
-// e5m2 and e4m3 (saturating) as the OCP 8-bit specification gives their ranges (OCP FP8 v1.0 Table 1): e5m2 largest
-// 57344, smallest normal 2^-14, smallest subnormal 2^-16; e4m3 largest 448, smallest normal 2^-6, subnormal 2^-9
-const E5M2: RangeLimits = {
-  format: "e5m2",
-  maxFinite: 57344,
-  overflowLevel: 61440,
-  saturates: false,
-  flushBound: 2 ** -17,
-  minNormal: 2 ** -14,
-  smallest: 2 ** -16,
-  unitRoundoff: 2 ** -3,
-};
-const E4M3_SATURATING: RangeLimits = {
-  format: "e4m3",
-  maxFinite: 448,
-  overflowLevel: 448,
-  saturates: true,
-  flushBound: 2 ** -10,
-  minNormal: 2 ** -6,
-  smallest: 2 ** -9,
-  unitRoundoff: 2 ** -4,
-};
 
 const ROLES: TensorRole[] = ["activation", "pre-activation", "weight", "activation-gradient", "weight-gradient"];
 
