@@ -1,4 +1,4 @@
-import { lossScaleRangeProblem } from "../spec/limits.js";
+import { lossScaleProblem } from "../spec/limits.js";
 import { UserError } from "./errors.js";
 
 /**
@@ -14,7 +14,8 @@ export function parseLossScale(text: string | undefined): number | undefined {
   if (!(value > 0) || !Number.isFinite(value) || 2 ** Math.round(Math.log2(value)) !== value) {
     throw new UserError(`--loss-scale: expected a power of two such as 1024 or 0.5, got "${text}"`);
   }
-  const problem = lossScaleRangeProblem(Math.log2(value));
+  // past the power-of-two test above, the rule the spec and the library share gives only the range's message
+  const problem = lossScaleProblem(value);
   if (problem !== undefined) throw new UserError(`--loss-scale: ${problem}, got "${text}"`);
   return value;
 }

@@ -272,10 +272,19 @@ export function diagonalPullback(m: Curvature, onDiagonal: number, offDiagonal: 
     diagonalSquare,
     rowSquares: diagonalSquare + offDiagonal * offDiagonal * Math.max(m.rowSquares - m.diagonalSquare, 0),
   };
-  if (m.indefinite === true) pulled.indefinite = true;
-  if (m.tangentExcess !== undefined) pulled.tangentExcess = m.tangentExcess;
-  if (m.tangentAbove !== undefined) pulled.tangentAbove = m.tangentAbove;
+  keepMarks(m, pulled);
   return pulled;
+}
+
+/**
+ * What a pulled-back curvature keeps of the one above it besides its statistics: whether it is indefinite and its
+ * tangent excess (Curvature.tangentExcess). Dense layers and pointwise maps keep them; the families that build their
+ * own matrix (norms, flatten, attention, residual sums) start the excess again at 1.
+ */
+export function keepMarks(from: Curvature, to: Curvature): void {
+  if (from.indefinite === true) to.indefinite = true;
+  if (from.tangentExcess !== undefined) to.tangentExcess = from.tangentExcess;
+  if (from.tangentAbove !== undefined) to.tangentAbove = from.tangentAbove;
 }
 
 /**

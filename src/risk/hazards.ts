@@ -231,7 +231,7 @@ export function evaluateHazard(
     const worse = endWorse ? second : first;
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const words = sentenceOf(worse, site, context, ended ? at : null);
+    const words = sentenceOf(worse, site, context, ended ? at : null, origin);
     const sentence = pieced(worse.wording) ? words : flat(words);
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
@@ -335,14 +335,15 @@ function verdictWord(verdict: Verdict): string {
   return verdict === "fits" ? "fits" : verdict === "at-risk" ? "at risk" : "fails";
 }
 
-// what a softmax site's sentence names: its layer, or the cross-entropy's own softmax
-function softmaxOf(site: HazardSite): string {
-  return site.layer === "loss" ? "the cross-entropy loss" : site.layer;
+// what a softmax site's sentence names: its layer, or the cross-entropy's own softmax (the training setup's site; a
+// layer the user named "loss" is still named by its name)
+function softmaxOf(site: HazardSite, origin: HazardCheck["origin"]): string {
+  return origin === "training setup" ? "the cross-entropy loss" : site.layer;
 }
 
 // what one term of a softmax's denominator stands for: a key of an attention, a class of the cross-entropy
-function softmaxTerm(site: HazardSite): string {
-  return site.layer === "loss" ? "class" : "key";
+function softmaxTerm(origin: HazardCheck["origin"]): string {
+  return origin === "training setup" ? "class" : "key";
 }
 
 // Whether a wording's sentence is the site's name between words its memo keeps (Words): left as those few pieces,
@@ -359,7 +360,7 @@ const AT_END = ` ${when("end")}`;
 // The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
 // of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
 // and one after the weights have grown call for different remedies)
-function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null): string {
+function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null, origin: HazardCheck["origin"]): string {
   const side = at === null ? "" : at === "start" ? AT_START : AT_END;
   const format = draft.format;
   const value = draft.value;
@@ -367,10 +368,10 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
   switch (draft.wording) {
     case SOFTMAX_GUARDED:
       return value > 0
-        ? `The softmax of ${softmaxOf(site)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per ${softmaxTerm(site)}, ` +
+        ? `The softmax of ${softmaxOf(site, origin)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per ${softmaxTerm(origin)}, ` +
             `each at most 1), can pass what ${format} holds (${limitNumber(draft.criticalLevel as number)})` +
             `${draft.notWidened ? " if the sum is kept in the activation format" : ""} (${verdictWord(verdict)}).`
-        : `The softmax of ${softmaxOf(site)} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
+        : `The softmax of ${softmaxOf(site, origin)} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
             `${site.terms}) stays within ${format}${draft.extra === 1 ? " with its scale factor" : ""}.`;
     case SOFTMAX_EXP:
       return (

@@ -196,8 +196,22 @@ function isReduced(format: Format): boolean {
   return format.precision < FORMATS.binary32.precision;
 }
 
+// by named fields: a look-up by a key that varies is a slow one, and the judge asks it per tensor
 function entryFormat(plan: PrecisionPlan, entry: PlanEntry): FormatName {
-  return entry === "gradientSums" ? gradientSumFormat(plan) : plan[entry];
+  switch (entry) {
+    case "activations":
+      return plan.activations;
+    case "weights":
+      return plan.weights;
+    case "gradients":
+      return plan.gradients;
+    case "optimizerStates":
+      return plan.optimizerStates;
+    case "accumulate":
+      return plan.accumulate;
+    case "gradientSums":
+      return gradientSumFormat(plan);
+  }
 }
 
 /**
@@ -607,7 +621,7 @@ function judgeTensor(
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
-    const judged = heldIn(setting.evaluated, entry) === setting.format;
+    const judged = entryFormat(setting.evaluated, entry) === setting.format;
     if (!judged && !everyFormat) continue;
     const options = judged ? setting.held : setting.notHeld;
     let risk: TensorCheckRisk;
@@ -639,24 +653,6 @@ function judgeTensor(
   checked.risks = count === 1 ? [RISKS[0] as TensorCheckRisk] : RISKS.slice(0, count);
   checked.verdict = verdict;
   return checked;
-}
-
-// the format a plan holds an entry in, by named fields (a look-up by a key that varies is a slow one per tensor)
-function heldIn(plan: PrecisionPlan, entry: PlanEntry): FormatName | undefined {
-  switch (entry) {
-    case "activations":
-      return plan.activations;
-    case "weights":
-      return plan.weights;
-    case "gradients":
-      return plan.gradients;
-    case "optimizerStates":
-      return plan.optimizerStates;
-    case "accumulate":
-      return plan.accumulate;
-    case "gradientSums":
-      return plan.gradientSums;
-  }
 }
 
 // per setting, the hazard context of its plan (settings judged under the same plan share one)
@@ -897,7 +893,7 @@ export function trainingSites(
   // the loss tensor's place: the tensor before it is the network's output (the logits under cross-entropy)
   const lossAt = prediction.tensors.findIndex((t) => t.role === "loss");
   if (!hasSite(prediction.hazards, "loss-value")) {
-    const lossTensor = lossTensorOf(prediction.tensors);
+    const lossTensor = lossAt >= 0 ? prediction.tensors[lossAt] : undefined;
     const perTerm =
       lossTensor !== undefined
         ? lossTensor.start
@@ -936,7 +932,7 @@ export function trainingSites(
 
   // the cross-entropy's own softmax: its log-sum-exp subtracts the row maximum (common practice; src/ops/loss/kernel.ts),
   // so only its denominator, up to one term per class, can pass a format's range, as an attention softmax's can
-  if (training.loss.kind === "cross-entropy" && !prediction.hazards.some((h) => h.kind === "softmax-exp" && h.layer === "loss")) {
+  if (training.loss.kind === "cross-entropy") {
     const logits = lossAt >= 1 ? (prediction.tensors[lossAt - 1] as TensorPrediction).start : undefined;
     if (logits !== undefined) {
       sites.push({
@@ -1017,11 +1013,6 @@ export function trainingSites(
   return sites;
 }
 
-// the first tensor of role "loss", as `find` would give it
-function lossTensorOf(tensors: readonly TensorPrediction[]): TensorPrediction | undefined {
-  for (let i = 0; i < tensors.length; i++) if ((tensors[i] as TensorPrediction).role === "loss") return tensors[i];
-  return undefined;
-}
 
 function constantProfile(value: number): MagnitudeProfile {
   return { elements: 1, zeroFraction: 0, shape: "constant", rms: value, log2Spread: 0 };

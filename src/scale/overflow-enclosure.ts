@@ -191,7 +191,11 @@ export function enclosureApplies(profile: MagnitudeProfile, t: number): boolean 
   if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return false;
   // a bound decides the law past it (the probability is 0 there): the integrals' own bounds say so
   if (profile.bound !== undefined && profile.bound > 0 && t > profile.bound) return false;
-  const n = profile.elements * (1 - profile.zeroFraction);
+  return enclosedCount(profile.elements * (1 - profile.zeroFraction));
+}
+
+/** Whether a tensor of `n` nonzero elements is enough for the moment bounds ({@link enclosureApplies}' count rule). */
+export function enclosedCount(n: number): boolean {
   return n >= LEAST_COUNT && Number.isFinite(n);
 }
 

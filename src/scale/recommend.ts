@@ -13,7 +13,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosedCount, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -313,7 +313,8 @@ class BoundedCurves implements ScaledTensorCurves {
 
 // The flushed share of a Gaussian or half-Gaussian law without a cap, at any spread of its scale, grows at most
 // eightfold per binade the threshold doubles (the magnitudes' density does not rise away from 0: src/scale/window.ts
-// flushedEnergyGrowth); twice that covers the integrals' own error (tables within 1.1e-4 relative, src/risk/laws.ts).
+// flushedEnergyGrowth); 9 = 8·(1 + 1/8) leaves room far above the integrals' own error (tables within 1.1e-4 relative,
+// src/risk/laws.ts).
 const FLUSH_GROWTH = 9;
 function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
   return (profile.shape === "gaussian" || profile.shape === "half-gaussian") && (profile.bound === undefined || !(profile.bound > 0));
@@ -473,7 +474,7 @@ class ShiftEnds {
         const count = law.elements * (1 - law.zeroFraction);
         const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
         if (side === 0) m.gaussian[i] = gaussianLaw && count >= 16 ? 1 : 0;
-        if (!gaussianLaw || !(count >= 16 && Number.isFinite(count))) continue;
+        if (!gaussianLaw || !enclosedCount(count)) continue;
         m.ok[j] = 1;
         shiftLevels(count, m.levels, 3 * j);
         m.bound[j] = law.bound !== undefined && law.bound > 0 ? Math.log2(law.bound) - 1e-9 : Infinity;
@@ -622,7 +623,7 @@ class HorizonPoint {
     }
     const shape = base.shape;
     const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
-    if (!(rms > 0 && spread > 0 && gaussianLaw && count >= 16 && Number.isFinite(count))) {
+    if (!(rms > 0 && spread > 0 && gaussianLaw && enclosedCount(count))) {
       m.applies[i] = 2;
       return;
     }

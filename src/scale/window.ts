@@ -652,25 +652,36 @@ class WindowSearch {
     this.state[i] = 2;
   }
 
-  // the tighter upper bound at k; false when the curve has none
   // the rougher upper bound at k, once, kept as the cheap bounds' high (a probability's low 0 where there were none);
   // false when the curve has none or it was taken
   private roughen(k: number, i: number, table: Table): boolean {
-    const flags = table.flags[i] as number;
-    if ((flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) !== 0) return false;
-    const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
-    table.flags[i] = flags | HAS_ROUGH;
+    if (((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) !== 0) return false;
+    const rough = this.takeRough(k, i, table);
     if (rough === undefined) return false;
-    if ((flags & HAS_BOUNDS) === 0) {
-      table.data[4 * i] = 0;
-      table.data[4 * i + 1] = rough;
-      table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
-    } else if (rough < (table.data[4 * i + 1] as number)) table.data[4 * i + 1] = rough;
-    this.mark("overflow", table, i);
     this.setBounds(i, this.lows[i] as number, Math.max(this.lows[i] as number, rough));
     return true;
   }
 
+  // the curve's rougher overflow bound at k taken into the table (marked as asked, the high lowered to it, a low of 0
+  // where the table had no bounds); undefined when the curve has none
+  private takeRough(k: number, i: number, table: Table): number | undefined {
+    const flags = table.flags[i] as number;
+    const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
+    table.flags[i] = flags | HAS_ROUGH;
+    if (rough === undefined) return undefined;
+    if ((flags & HAS_BOUNDS) === 0) {
+      table.data[4 * i] = 0;
+      table.data[4 * i + 1] = rough;
+      table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
+      this.mark("overflow", table, i);
+    } else if (rough < (table.data[4 * i + 1] as number)) {
+      table.data[4 * i + 1] = rough;
+      this.mark("overflow", table, i);
+    }
+    return rough;
+  }
+
+  // the tighter upper bound at k; false when the curve has none
   private tighten(k: number, i: number, table: Table): boolean {
     this.state[i] = 1;
     const u = this.upper("overflow", k, i, table);
@@ -723,13 +734,8 @@ class WindowSearch {
       const flags = table.flags[i] as number;
       if (curve === "overflow" && (highs[i] as number) > floor && (flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0 && (flags & HAS_BOUNDS) !== 0) {
         // a rougher bound first, where the curve has one: it settles many tensors below the value found
-        const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
-        table.flags[i] = flags | HAS_ROUGH;
-        if (rough !== undefined && rough < (table.data[4 * i + 1] as number)) {
-          table.data[4 * i + 1] = rough;
-          this.mark(curve, table, i);
-          if (rough < (highs[i] as number)) highs[i] = rough;
-        }
+        const rough = this.takeRough(k, i, table);
+        if (rough !== undefined && rough < (highs[i] as number)) highs[i] = rough;
         if ((highs[i] as number) < floor) continue;
       }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;

@@ -70,7 +70,7 @@ interface Model {
   second: Map<string, Float64Array>;
   random: RandomSource;
   step: number;
-  /** weights whose every element started at zero (biases, as initialised): no scale to set an update against */
+  /** weights whose every element starts at zero (biases, as initialised; marked when made, so a skipped first step does not hide them): no scale to set an update against */
   zeroStart: Set<string>;
 }
 
@@ -195,6 +195,7 @@ function createModel(setup: Setup, seed: number, recorder: Recorder): Model {
       }
       recorder.store({ id: weightId(layer, w.name, "weight"), layer: layer.name, role: "weight", slot: "weights", shape: w.shape }, data);
       model.weights.set(key, data);
+      if (data.every((x) => x === 0)) model.zeroStart.add(key);
     }
   }
   return model;
@@ -490,7 +491,6 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
     record.swamped[key] = changed > 0 ? swamped / changed : 0;
     // a weight that starts at zero (a bias) has no size of its own to set its first updates against: its ratio would
     // be infinite, then ~1 for any learning rate, and say nothing of the update's size
-    if (t === 1 && w2 === 0) model.zeroStart.add(key);
     if (!model.zeroStart.has(key)) record.updateRatio[key] = w2 > 0 ? Math.sqrt(u2 / w2) : 0;
   }
   return record;

@@ -122,6 +122,18 @@ describe("the cross-entropy's own softmax", () => {
     const wide = judged("binary32");
     expect(wide?.findings.map((f) => [f.format, f.severity])).toEqual([["binary16", "at-risk"]]);
   });
+
+  it("a softmax layer the spec names \"loss\" is told by its name, and the cross-entropy's own softmax is still judged", () => {
+    const text = `name: catalogue-head\ninput: { features: 16 }\ntraining: { batch: 8, loss: { kind: cross-entropy, classes: 16 } }\nprecision: { activations: binary16 }\nlayers:\n  - { type: softmax, name: loss }\n  - { type: dense, width: 16 }\n`;
+    const parsed = parseSpec(text, "catalogue-head.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const graph = buildGraph(parsed.spec);
+    if (!graph.ok) throw new Error("does not build");
+    const softmaxes = judgePrediction(parsed.spec, predict(graph.graph, parsed.spec)).hazards.filter((h) => h.kind === "softmax-exp");
+    expect(softmaxes.map((h) => h.origin)).toEqual(["prediction", "training setup"]);
+    expect(softmaxes[0]?.evaluations[0]?.sentence).toMatch(/^The softmax of loss /);
+    expect(softmaxes[1]?.evaluations[0]?.sentence).toMatch(/^The softmax of the cross-entropy loss /);
+  });
 });
 
 describe("norm sums of squares", () => {

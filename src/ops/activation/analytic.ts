@@ -499,10 +499,6 @@ function selfGateRule(name: string, derivativeSecond: number, ratio: number): Te
   return () => `${name}: E[φ'²] = ${fmt(derivativeSecond)}, with the unit's own output the loss's curvature holds in its gradient: ${fmt(ratio)}`;
 }
 
-/**
- * (E[φ'']/E[φ'])² and (E[φ' + u·φ'']/E[φ'])² of an activation's input u, the two from E[u·φ'] = q·E[φ''] and
- * E[u²·φ'] = q·E[φ' + u·φ''] (Stein's lemma), which hold for the rectifiers' kinks too; 0 where E[φ'] = 0
- */
 /** E[(φ'(u)·u)²] of an activation's input u (its zeros give 0) */
 function tangentSecond(name: string, stash: ActivationStash): number {
   const input = stash.input;
@@ -512,6 +508,11 @@ function tangentSecond(name: string, stash: ActivationStash): number {
   const { df } = activationFunction(name as ActivationName, stash.slope);
   return keep * gaussianExpectationSplit((u) => (u * df(u)) ** 2, q);
 }
+
+/**
+ * (E[φ'']/E[φ'])² and (E[φ' + u·φ'']/E[φ'])² of an activation's input u, the two from E[u·φ'] = q·E[φ''] and
+ * E[u²·φ'] = q·E[φ' + u·φ''] (Stein's lemma), which hold for the rectifiers' kinks too; 0 where E[φ'] = 0
+ */
 
 function skipStein(name: string, stash: ActivationStash): { second: number; below: number } {
   const input = stash.input;
@@ -540,7 +541,7 @@ function selfMoments(name: string, stash: ActivationStash, centred: boolean): { 
   let mean: number;
   let second: number;
   let outputSecond: number;
-  if (!centred && (name === "relu" || name === "leaky-relu" || name === "identity")) {
+  if (!centred && HOMOGENEOUS.has(name)) {
     // E[u·1(u>0)] = √(q/2π), E[u²·1(u>0)] = q/2; φ'φ = u on the positive side, a²·u on the negative
     mean = (1 - a * a) * Math.sqrt(q / (2 * Math.PI));
     second = (q * (1 + a * a * a * a)) / 2;

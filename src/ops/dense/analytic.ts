@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -239,9 +239,7 @@ export function densePullback(m: Curvature, v: number, outWidth: number, inWidth
   const counted = diagonalSquare + (inWidth - 1) * v * v * frobenius;
   const rowSquares = m.indefinite === true ? counted : Math.min(counted, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
   const pulled: Curvature = { diagonal, diagonalSquare, rowSquares };
-  if (m.indefinite === true) pulled.indefinite = true;
-  if (m.tangentExcess !== undefined) pulled.tangentExcess = m.tangentExcess;
-  if (m.tangentAbove !== undefined) pulled.tangentAbove = m.tangentAbove;
+  keepMarks(m, pulled);
   // Wᵀ·A·W stays non-symmetric; E_i[Cov(x_i, (Wᵀg)_i)²] = v·fan_out·E[C²] against v·fan_in·E[C²] above, C_ja =
   // Cov(x_j, g_a) independent of W (own algebra)
   if (m.skip !== undefined) pulled.skip = { rowSquares: inWidth * v * v * skip, diagonalSquare: v * v * skip, covariance: (m.skip.covariance * outWidth) / inWidth };
