@@ -16,6 +16,7 @@ import { lossSeed } from "./loss.js";
 import { plainProfile, profileOf } from "./profile.js";
 import { carriedMeanSquare, predictionRangeError } from "./range.js";
 import type {
+  HazardKind,
   HazardSite,
   LedgerEntry,
   MagnitudeProfile,
@@ -229,11 +230,13 @@ class Phase {
     throw new RangeError(`internal: start and end passes disagree at tensor ${a?.id ?? layer}`);
   }
 
-  /** Throws unless the end pass met every tensor of the start pass. */
+  /** Throws unless the end pass met every tensor and every site of the start pass. */
   finish(): void {
-    if (this.phase === "end" && this.emitted !== this.tensors.length) {
+    if (this.phase !== "end") return;
+    if (this.emitted !== this.tensors.length) {
       throw new RangeError(`internal: start and end passes disagree at tensor ${this.tensors[this.emitted]?.id ?? ""}`);
     }
+    if (this.sited !== this.hazards.length) disagreeAtSite(this.sited, this.hazards[this.sited], undefined, undefined);
   }
 
   /**
@@ -244,10 +247,15 @@ class Phase {
     this.hazards.push(site);
   }
 
-  /** The end pass's profiles of the next start site (see {@link site}). */
-  siteEnd(input: MagnitudeProfile, output: MagnitudeProfile | undefined): void {
-    const site = this.hazards[this.sited++];
-    if (site !== undefined) site.end = { input, output };
+  /**
+   * The end pass's profiles of the next start site (see {@link site}), which must be of the same kind and layer: a
+   * rule that sited differently in the two passes would otherwise give a site another's end.
+   */
+  siteEnd(kind: HazardKind, layer: string, input: MagnitudeProfile, output: MagnitudeProfile | undefined): void {
+    const index = this.sited++;
+    const site = this.hazards[index];
+    if (site === undefined || site.kind !== kind || site.layer !== layer) disagreeAtSite(index, site, kind, layer);
+    site.end = { input, output };
   }
 
   /** A layer's batch-first output shape (none in the end pass, whose records report no shape). */
@@ -260,7 +268,7 @@ class Phase {
     const outputElements = h.outputElements ?? h.inputElements;
     const input = profileOf(h.input, h.inputElements);
     const out = h.output === undefined ? undefined : h.output === output && outputElements === elements ? profile : profileOf(h.output, outputElements);
-    if (this.phase === "end") return this.siteEnd(input, out);
+    if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, out);
     // every site is created whole, in one key order (judge.ts's trainingSites too), so its readers see one layout
     this.site({
       kind: h.kind,
@@ -488,7 +496,7 @@ class Phase {
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
     const input = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
     const output = plainProfile(summedQ, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
-    if (this.phase === "end") return this.siteEnd(input, output);
+    if (this.phase === "end") return this.siteEnd("gradient-sum", layer.name, input, output);
     this.site({
       kind: "gradient-sum",
       layer: layer.name,
@@ -502,6 +510,13 @@ class Phase {
       tensor: this.build ? id : undefined,
     });
   }
+}
+
+/** The error of an end pass whose site `index` is not the start pass's (kind undefined: it met no site there). */
+function disagreeAtSite(index: number, site: HazardSite | undefined, kind: HazardKind | undefined, layer: string | undefined): never {
+  const start = site === undefined ? "none" : `${site.kind} of ${site.layer}`;
+  const end = kind === undefined ? "none" : `${kind} of ${layer ?? ""}`;
+  throw new RangeError(`internal: start and end passes disagree at hazard site ${index}: ${start} at the start, ${end} at the end`);
 }
 
 /** Extra inputs of a layer that is not a residual add (one object for all of them). */
@@ -628,7 +643,7 @@ function runPhase(
   if (training.loss.reduction === "sum") {
     const siteInput = profileOf(lossValueMoments(seed.termValue, seed.valueLogVar), seed.terms);
     const siteOutput = profileOf(lossValueMoments(seed.value, seed.valueLogVar), 1);
-    if (phase === "end") p.siteEnd(siteInput, siteOutput);
+    if (phase === "end") p.siteEnd("loss-value", "loss", siteInput, siteOutput);
     else {
       p.site({
         kind: "loss-value",

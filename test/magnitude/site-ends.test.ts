@@ -7,6 +7,7 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
+import { analyticRules } from "../../src/ops/registry.js";
 import type { Prediction } from "../../src/magnitude/types.js";
 import type { LayerSpec, NetworkSpec } from "../../src/spec/types.js";
 import { act, dense, features, he, makeSpec, mse } from "./build-spec.js";
@@ -87,5 +88,29 @@ describe("hazard sites at the end of the horizon", () => {
     expect(weights[0]!.start).toEqual(weights[1]!.start);
     weights[0]!.start.rms *= 2;
     expect(weights[1]!.start.rms).toBe(weights[0]!.start.rms / 2);
+  });
+
+  it("are paired by kind and layer: an end pass that sites otherwise is an internal error, not another site's end", () => {
+    // a dense rule that, at the end only, reports its sums as a norm's: the end pass meets a site of another kind
+    const spec = makeSpec([dense("d0", 16), act("a0"), dense("d1", 16), act("a1")], { input: features(16) });
+    const rule = analyticRules.dense;
+    const forward = rule.forward;
+    rule.forward = (ctx, layer, input, branch) => {
+      const result = forward(ctx, layer, input, branch);
+      if (ctx.phase !== "end" || layer.name !== "d1") return result;
+      return { ...result, hazards: result.hazards.map((h) => ({ ...h, kind: "norm-sum-of-squares" as const })) };
+    };
+    try {
+      expect(() => predictOf(spec)).toThrow(/internal: start and end passes disagree at hazard site 1: accumulation of d1 at the start, norm-sum-of-squares of d1 at the end/);
+      // one site fewer at the end: the start pass's last site is left without its end
+      rule.forward = (ctx, layer, input, branch) => {
+        const result = forward(ctx, layer, input, branch);
+        return ctx.phase === "end" && layer.name === "d1" ? { ...result, hazards: [] } : result;
+      };
+      expect(() => predictOf(spec)).toThrow(/internal: start and end passes disagree at hazard site 1: accumulation of d1 at the start, none at the end/);
+    } finally {
+      rule.forward = forward;
+    }
+    expect(predictOf(spec).hazards.every((site) => site.end !== undefined)).toBe(true);
   });
 });
