@@ -5,7 +5,7 @@
  */
 import { positionCount } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -152,16 +152,7 @@ export function linearBackward(
   // (a convolution's kernel pairs neighbouring positions, which this per-position count does not cover: none there)
   // E[x xᵀ]'s row: E[x²]² on the diagonal and the covariances of the (fan_in − 1) other features off it (featureCovariance)
   const aligned = curvature === undefined || layer.family !== "dense" ? 0 : terms * terms * x.q * x.q * (1 + (inWidth - 1) * (x.featureCovariance ?? 0)) * variance * curvature.rowSquares;
-  // the pair correlations of input and gradient, read once for the weight's and the bias's sums (gradientSum and
-  // gradientBetween take the same six)
-  const xSample = sampleCorrelationOf(x);
-  const xPosition = positionCorrelationOf(x);
-  const xCross = crossCorrelationOf(x);
-  const dSample = sampleCorrelationOf(output);
-  const dPosition = positionCorrelationOf(output);
-  const dCross = crossCorrelationOf(output);
-  const xq = x.q * output.q;
-  let weightSum = correlatedSum(ctx.batch, positions, xq, xSample * dSample, xPosition * dPosition, xCross * dCross);
+  let weightSum = gradientSum(ctx.batch, positions, output, x);
   const bias = maybeWeight(layer, "bias");
   if (output.homogeneousSum !== undefined && inWidth > 0 && variance > 0 && (bias === undefined || ctx.variance(bias) === 0)) {
     // Σ δ·xᵀ holds S·w/‖w‖² along the unit's own weights, S = Σ y·δ (Gradient.homogeneousSum), in place of one of
@@ -174,7 +165,7 @@ export function linearBackward(
       weight: "weight",
       q: weightSum + aligned,
       alignedQ: aligned,
-      betweenQ: betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross),
+      betweenQ: gradientBetween(ctx.batch, positions, output, x),
       coherentQ: terms * terms * x.q * output.q,
       terms,
       zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
@@ -183,11 +174,11 @@ export function linearBackward(
     },
   ];
   if (bias !== undefined) {
-    const biasSum = correlatedSum(ctx.batch, positions, output.q, dSample, dPosition, dCross);
+    const biasSum = gradientSum(ctx.batch, positions, output);
     weightGradients.push({
       weight: "bias",
       q: biasSum,
-      betweenQ: betweenBatches(ctx.batch, positions, output.q, dSample, dCross),
+      betweenQ: gradientBetween(ctx.batch, positions, output),
       coherentQ: terms * terms * output.q,
       terms,
       zeroFraction: deltaZero,
@@ -209,7 +200,7 @@ export function linearBackward(
     if (before > 0) selfRatio = input.q / before;
   }
   if (output.shared !== undefined) input.shared = gain * output.shared;
-  input.positionCorrelation = dPosition;
+  input.positionCorrelation = positionCorrelationOf(output);
   // weights shared across positions pair two positions of two samples with such pairs of the output gradient
   if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation;
   return {
