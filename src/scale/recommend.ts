@@ -8,7 +8,9 @@ import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitud
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { gradientProfiles, lossScaleCurveParts, profilesOf, type GradientProfiles, type LossScaleCurveParts } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
-import { energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
+import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
+import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
+import { exp2 } from "../risk/_math.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
@@ -388,6 +390,9 @@ export function dynamicModel(
   // per point of the horizon: for each tensor the smallest scale at which its flushing was found within the tolerance,
   // and whether its bound at the lowest scale was taken
   const flushing = new Map<number, { tolerated: Float64Array; anchored: Uint8Array }>();
+  // per tensor 1 when its flushed share at the lowest scale is within the tolerance at every point before the end, read
+  // off its two ends once (flushWithinBeforeEnd): such tensors are never looked at again, nor their profiles made
+  let within: Uint8Array | undefined;
   // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
   // scale takes), without a scaled copy per scale
   return {
@@ -411,6 +416,15 @@ export function dynamicModel(
       if (known === undefined) {
         known = { tolerated: new Float64Array(n).fill(Infinity), anchored: new Uint8Array(n) };
         flushing.set(progress, known);
+        if (progress < 1) {
+          within ??= flushWithinBeforeEnd(profiles, limits.flushBound / lowestScale, options.flushTolerance);
+          for (let i = 0; i < n; i++) {
+            if (within[i] === 1) {
+              known.tolerated[i] = lowestScale;
+              known.anchored[i] = 1;
+            }
+          }
+        }
       }
       const tolerance = options.flushTolerance;
       const bound = limits.flushBound / scale;
@@ -435,6 +449,42 @@ export function dynamicModel(
       return false;
     },
   };
+}
+
+/**
+ * Per gradient, 1 when its flushed energy share at threshold t (the lowest scale's) is within `tolerance` at every point
+ * of the horizon before its end, decided from the two ends without a profile per point. Where the start's law is
+ * Gaussian without a bound (ProfileDrawBounds' fast path, src/risk/bounds.ts), the upper bound the model's anchoring
+ * takes is at most the law's share at the lowest draw rms·2^{−9s}, and at most its share at the inner draw rms·2^{−4s}
+ * taken as bounds.ts does; inside the horizon log2 rms and s move linearly with the progress (profileBetween), so each
+ * draw's log2 is at least the smaller of its values at the two ends, and the share falls as the draw grows. The shares
+ * at those smallest draws (a billionth of a binade lower, for the rounding of rms, the spread and the draws' products)
+ * bound every point's; 1e-5 of room covers the computed share's departures from monotone (the fast erfc's 1.2e-7 over a
+ * share of 0.2 or more where it is used, src/risk/_math.ts; rounding alone in the series below that). Then the anchoring's own test
+ * passes at every such point.
+ */
+function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number, tolerance: number): Uint8Array {
+  const n = gradients.length;
+  const out = new Uint8Array(n);
+  const inside = 1 - INNER_DRAW_OUTSIDE;
+  for (let i = 0; i < n; i++) {
+    const { start, end } = gradients[i]!;
+    const shape = start.shape;
+    if ((shape !== "gaussian" && shape !== "half-gaussian") || (start.bound !== undefined && start.bound > 0)) continue;
+    const s0 = start.log2Spread;
+    const s1 = end.log2Spread;
+    // a positive rms and spread at every point before the end, and nonzero elements: the fast path's conditions
+    if (!(start.rms > 0) || !(nonzeroElements(start) > 0) || !(s0 > 0) || !(s1 >= 0)) continue;
+    const l0 = Math.log2(start.rms);
+    // profileBetween keeps the start's rms where the end's is not positive
+    const l1 = end.rms > 0 ? Math.log2(end.rms) : l0;
+    const law = elementLaw(start);
+    const outer = law.energyBelow(exp2(Math.min(l0 - 9 * s0, l1 - 9 * s1) - 1e-9), t);
+    const inner = law.energyBelow(exp2(Math.min(l0 - 4 * s0, l1 - 4 * s1) - 1e-9), t);
+    const high = Math.min(outer * (1 + 1e-12), (inner * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9));
+    if (high * (1 + 1e-5) <= tolerance * (1 - 1e-9)) out[i] = 1;
+  }
+  return out;
 }
 
 /**

@@ -6,11 +6,11 @@
 import * as fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
+import { energyBelow, limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { normalSf } from "../../src/numeric/normal.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
 import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels } from "../../src/scale/overflow-enclosure.js";
-import { dynamicModel } from "../../src/scale/recommend.js";
+import { dynamicModel, profileAt } from "../../src/scale/recommend.js";
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
 import { halfPlan } from "../magnitude/build-spec.js";
@@ -194,5 +194,37 @@ describe("shiftBoundsTabled", () => {
       ),
       { numRuns: 3000 },
     );
+  });
+});
+
+describe("the dynamic-scale model's flushing", () => {
+  it("says whether any tensor flushes too much exactly as each tensor's integral does, inside the horizon and at its ends (property)", () => {
+    let both = 0;
+    fc.assert(
+      fc.property(
+        // gradients about the flush threshold (2^−25 here) over the scales asked, one to a few
+        fc.array(draft.map((d) => ({ ...d, log2RmsStart: d.log2RmsStart * 1.5 })), { minLength: 1, maxLength: 4 }),
+        fc.oneof(fc.constantFrom(0, 1), fc.double({ min: 0.01, max: 0.99, noNaN: true })),
+        fc.constantFrom(1e-3, 0.05, 0.3),
+        fc.constantFrom(1, 2 ** 4),
+        (drafts, progress, flushTolerance, lowestScale) => {
+          const tensors = tensorsOf(drafts);
+          const options = { ...DEFAULT_WINDOW_OPTIONS, flushTolerance };
+          const model = dynamicModel(tensors, limits, options, lowestScale);
+          const answers = new Set<boolean>();
+          // scales from the lowest up and back down, as a dynamic scale moves
+          for (const k of [0, 3, 8, 14, 20, 6, 1]) {
+            const scale = lowestScale * 2 ** k;
+            const direct = tensors.some((t) => energyBelow(profileAt(t, progress), limits.flushBound / scale) > flushTolerance);
+            expect(model.flushesTooMuch(scale, progress)).toBe(direct);
+            answers.add(direct);
+          }
+          if (answers.size === 2) both++;
+        },
+      ),
+      { numRuns: 150 },
+    );
+    // the property met models that flush too much at some scales and not at others
+    expect(both).toBeGreaterThan(10);
   });
 });
