@@ -48,6 +48,8 @@ export const STANDING_TOLERANCE: Tolerance = { binades: 0.5, flushed: 0.05, flus
 export function crossesFlushedLevel(measured: number, predicted: number, levels: readonly number[] = []): boolean {
   if (!(measured >= 0) || !(predicted >= 0)) return false;
   const [low, high] = measured < predicted ? [measured, predicted] : [predicted, measured];
+  // a factor of 2 (our own margin, common practice for such a rule): shares closer than that may straddle a level
+  // by the noise of one measured batch alone
   if (!(high > 2 * low)) return false;
   return levels.some((level) => low <= level && high > level);
 }
