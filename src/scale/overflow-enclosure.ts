@@ -18,7 +18,7 @@
  * sum's 1e-6 (laws.ts), the moments' quadrature; 2e-5 of the upper bound covers them all (checked against the
  * integrals of src/risk/profile.ts in test/scale/overflow-enclosure.test.ts).
  */
-import type { MagnitudeProfile } from "../magnitude/types.js";
+import type { ElementShape, MagnitudeProfile } from "../magnitude/types.js";
 import { erfc, normalPdf, normalSf } from "../risk/_math.js";
 
 // below this many elements V's lower tail is only exponential in v (P(V ≤ v) ≈ (0.8·2^v)^n): the moments' range
@@ -187,16 +187,17 @@ function taylorValue(x: number, s: number, m: LevelMoments): number {
 /** Whether {@link anyAboveEnclosure} bounds this profile's any-above probability at t (a Gaussian law, enough elements). */
 export function enclosureApplies(profile: MagnitudeProfile, t: number): boolean {
   if (!(profile.rms > 0) || !(profile.log2Spread > 0) || !(t > 0)) return false;
-  const shape = profile.shape;
-  if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return false;
   // a bound decides the law past it (the probability is 0 there): the integrals' own bounds say so
   if (profile.bound !== undefined && profile.bound > 0 && t > profile.bound) return false;
-  return enclosedCount(profile.elements * (1 - profile.zeroFraction));
+  return enclosedLaw(profile.shape, profile.elements * (1 - profile.zeroFraction));
 }
 
-/** Whether a tensor of `n` nonzero elements is enough for the moment bounds ({@link enclosureApplies}' count rule). */
-export function enclosedCount(n: number): boolean {
-  return n >= LEAST_COUNT && Number.isFinite(n);
+/**
+ * Whether a law of this shape over `n` nonzero elements has the moment and shifted-tail bounds: a Gaussian law, 16
+ * elements or more ({@link enclosureApplies}' rule on the law alone, for callers that keep a profile's numbers apart).
+ */
+export function enclosedLaw(shape: ElementShape, n: number): boolean {
+  return (shape === "gaussian" || shape === "half-gaussian" || shape === "bounded") && n >= LEAST_COUNT && Number.isFinite(n);
 }
 
 /**
@@ -214,24 +215,27 @@ export function anyAboveEnclosure(profile: MagnitudeProfile, t: number): [number
 }
 const ENCLOSED = new Float64Array(2);
 
-/**
- * {@link anyAboveEnclosure} from plain numbers, for callers that keep a tensor's count, spread and x = log2(t/rms)
- * in typed arrays (the dynamic simulation): [low, high] into `into` at `at` and `at + 1`, false (nothing written)
- * where x is not finite. The caller checks that the bounds apply ({@link enclosureApplies}); the same arithmetic as
- * anyAboveEnclosure, so the same bounds bit for bit.
- */
-export function enclosureAt(n: number, s: number, x: number, into: Float64Array, at: number): boolean {
+// anyAboveEnclosure from plain numbers: [low, high] into `into` at `at` and `at + 1`, false (nothing written) where x is
+// not finite
+function enclosureAt(n: number, s: number, x: number, into: Float64Array, at: number): boolean {
   const k = Math.log(n) * PER_LN;
   return enclosureWith(levelMoments(Math.floor(k)), levelMoments(Math.ceil(k)), s, x, into, at);
 }
 
-/** The grid counts' moments {@link enclosureAt} takes for a count n: below n and above it (for callers that keep them). */
+/**
+ * The grid counts' moments {@link anyAboveEnclosure} takes for a count n: below n and above it (for callers that keep a
+ * tensor's count, spread and x = log2(t/rms) apart, as the dynamic simulation does in typed arrays).
+ */
 export function enclosureMoments(n: number): [LevelMoments, LevelMoments] {
   const k = Math.log(n) * PER_LN;
   return [levelMoments(Math.floor(k)), levelMoments(Math.ceil(k))];
 }
 
-/** {@link enclosureAt} with the grid counts' moments given ({@link enclosureMoments}). */
+/**
+ * {@link anyAboveEnclosure} from plain numbers with the grid counts' moments given ({@link enclosureMoments}): [low, high]
+ * into `into` at `at` and `at + 1`, false (nothing written) where x is not finite. The caller checks that the bounds
+ * apply ({@link enclosureApplies}); the same arithmetic, so the same bounds bit for bit.
+ */
 export function enclosureWith(a: LevelMoments, b: LevelMoments, s: number, x: number, into: Float64Array, at: number): boolean {
   if (!Number.isFinite(x)) return false;
   const valueA = taylorValue(x, s, a);

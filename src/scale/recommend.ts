@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosedCount, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -91,11 +91,20 @@ function profileBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress
     elements: start.elements,
     zeroFraction: start.zeroFraction,
     shape: start.shape,
-    rms: start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms,
-    log2Spread: start.log2Spread + (end.log2Spread - start.log2Spread) * progress,
+    rms: rmsBetween(start, end, progress),
+    log2Spread: spreadBetween(start, end, progress),
     bound: start.bound,
     elementLog2Spread: start.elementLog2Spread,
   };
+}
+
+// profileBetween's rms (geometric between two positive ends, else the start's) and spread (linear), for callers that
+// keep a profile's numbers without making it
+function rmsBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress: number): number {
+  return start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms;
+}
+function spreadBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress: number): number {
+  return start.log2Spread + (end.log2Spread - start.log2Spread) * progress;
 }
 
 function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
@@ -520,11 +529,10 @@ class ShiftEnds {
         const law = side === 0 ? g.start : g.end;
         m.rmsLog2[j] = Math.log2(law.rms);
         m.spread[j] = law.log2Spread;
-        const shape = law.shape;
         const count = law.elements * (1 - law.zeroFraction);
-        const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
-        if (side === 0) m.gaussian[i] = gaussianLaw && count >= 16 ? 1 : 0;
-        if (!gaussianLaw || !enclosedCount(count)) continue;
+        const enclosed = enclosedLaw(law.shape, count);
+        if (side === 0) m.gaussian[i] = enclosed ? 1 : 0;
+        if (!enclosed) continue;
         m.ok[j] = 1;
         shiftLevels(count, m.levels, 3 * j);
         m.bound[j] = law.bound !== undefined && law.bound > 0 ? Math.log2(law.bound) - 1e-9 : Infinity;
@@ -667,13 +675,11 @@ class HorizonPoint {
       rms = from.rms;
       spread = from.log2Spread;
     } else {
-      const { start, end } = g;
-      rms = start.rms > 0 && end.rms > 0 ? start.rms ** (1 - p) * end.rms ** p : start.rms;
-      spread = start.log2Spread + (end.log2Spread - start.log2Spread) * p;
+      rms = rmsBetween(g.start, g.end, p);
+      spread = spreadBetween(g.start, g.end, p);
     }
-    const shape = base.shape;
-    const gaussianLaw = shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
-    if (!(rms > 0 && spread > 0 && gaussianLaw && enclosedCount(count))) {
+    // enclosureApplies without t (enclose checks t and the bound)
+    if (!(rms > 0 && spread > 0 && enclosedLaw(base.shape, count))) {
       m.applies[i] = 2;
       return;
     }
