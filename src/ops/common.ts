@@ -285,6 +285,12 @@ export function keepMarks(from: Curvature, to: Curvature): void {
   if (from.indefinite === true) to.indefinite = true;
   if (from.tangentExcess !== undefined) to.tangentExcess = from.tangentExcess;
   if (from.tangentAbove !== undefined) to.tangentAbove = from.tangentAbove;
+  if (from.tangentAlong !== undefined) to.tangentAlong = from.tangentAlong;
+}
+
+/** The share of y along J·h that a curvature's statistics carry: min(1, along²/excess) (Curvature.tangentAlong). */
+export function tangentShare(excess: number, along = 1): number {
+  return Math.min(1, (along * along) / excess);
 }
 
 /**
@@ -302,7 +308,7 @@ export function limitTangent(m: Curvature, own: number, independent: number): vo
   // stays near 1 (pre-norm SiLU blocks measured so: test/magnitude/skip-projection.test.ts): only a unit that shrinks
   // the tangent (a saturating one) counts here
   const after = Math.min(own, 1) * above;
-  const scale = Math.min(1, 1 / after) / Math.min(1, 1 / before);
+  const scale = tangentShare(after, m.tangentAlong) / tangentShare(before, m.tangentAlong);
   if (scale !== 1) {
     const root = Math.sqrt(scale);
     m.diagonal *= root;

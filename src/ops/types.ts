@@ -223,6 +223,12 @@ export interface Curvature {
   tangentExcess?: number;
   /** the product of E[φ'²]·E[u²]/E[φ²] over the activations between this tensor and the loss; absent: 1 */
   tangentAbove?: number;
+  /**
+   * E[y·(J·h)]/E[y²], the part of the tangent that is the output itself, set where residual sums lie between this
+   * tensor and the loss (each keeps only the part of its sum's tangent along the sum: src/ops/residual/analytic.ts);
+   * absent: 1. y's share along J·h is then at most along²/tangentExcess, by which the statistics above are scaled
+   */
+  tangentAlong?: number;
 }
 
 

@@ -510,6 +510,31 @@ function tangentSecond(name: string, stash: ActivationStash): number {
 }
 
 /**
+ * The tangent φ'(u)·u an activation passes up for a perturbation along its own input u, against its output φ(u):
+ * E[(φ'(u)·u)²], E[φ'(u)·u·φ(u)] and E[φ(u)²] (zeros of the input counted as zeros of all three: φ'(0)·0 = 0). For the
+ * positively homogeneous ones φ'(u)·u = φ(u) (Euler's theorem), so the three are E[φ²]; quadrature for the others.
+ */
+export function tangentMoments(name: string, stash: ActivationStash): { tangent: number; cross: number; output: number } {
+  const input = stash.input;
+  const keep = 1 - input.zeroFraction;
+  const q = keep > 0 ? input.q / keep : 0;
+  const at = activationFunction(name as ActivationName, stash.slope);
+  const zeroOutput = input.zeroFraction * at.f(0) * at.f(0);
+  if (!(q > 0)) return { tangent: 0, cross: 0, output: zeroOutput };
+  if (HOMOGENEOUS.has(name)) {
+    const a = name === "leaky-relu" ? (stash.slope ?? 0) : name === "identity" ? 1 : 0;
+    const output = (keep * q * (1 + a * a)) / 2;
+    return { tangent: output, cross: output, output };
+  }
+  const { f, df } = at;
+  return {
+    tangent: tangentSecond(name, stash),
+    cross: keep * gaussianExpectationSplit((u) => u * df(u) * f(u), q),
+    output: keep * gaussianExpectationSplit((u) => f(u) * f(u), q) + zeroOutput,
+  };
+}
+
+/**
  * (E[φ'']/E[φ'])² and (E[φ' + u·φ'']/E[φ'])² of an activation's input u, the two from E[u·φ'] = q·E[φ''] and
  * E[u²·φ'] = q·E[φ' + u·φ''] (Stein's lemma), which hold for the rectifiers' kinks too; 0 where E[φ'] = 0
  */

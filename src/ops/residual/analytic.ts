@@ -7,10 +7,10 @@
  * and feature covariances are concerned: E[x·Fᵀ] = Cov(x)·J̄ᵀ with J̄ the branch's mean Jacobian (Stein's lemma).
  */
 import type { GraphLayer } from "../../graph/types.js";
-import type { ResidualLayer } from "../../spec/types.js";
-import type { ActivationStash } from "../activation/analytic.js";
+import type { ActivationLayer, DropoutLayer, ResidualLayer } from "../../spec/types.js";
+import { tangentMoments, type ActivationStash } from "../activation/analytic.js";
 import type { NormStash } from "../norm/analytic.js";
-import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar, weightOf } from "../common.js";
+import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar, tangentShare, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Curvature, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -27,6 +27,88 @@ export interface ResidualStash {
   meanJacobian: number | undefined;
   /** features of the skip */
   width: number;
+  /** how the block grows a perturbation along its input and one independent of it (BlockTangent); start phase only */
+  tangent: BlockTangent | undefined;
+}
+
+/**
+ * Per element of the branch output F: E[‖J_F·x‖²] and E[(J_F·x)·F] of the tangent J_F·x the branch makes of a
+ * perturbation along its own input x, and `independent`, E[‖J_F·ε‖²]/E[‖ε‖²] for ε independent of x (the mean-field
+ * gain: fan_in·var_w per dense layer, E[φ'²] per activation, Schoenholz et al. 2017)
+ */
+interface BlockTangent {
+  tangent: number;
+  cross: number;
+  /** E[F²] as the same walk has it (bias and means left out, as for the tangent) */
+  signal: number;
+  independent: number;
+}
+
+/**
+ * {@link BlockTangent} layer by layer. The tangent τ is split into its part along the signal s and the rest,
+ * τ = a·s + r with a = E[τ·s]/E[s²] (own algebra): a linear layer maps both alike; an activation passes a·φ'(u)·u
+ * along (tangentMoments) and the rest as an independent perturbation (E[φ'²]); a norm, unchanged by a scale of its
+ * input, passes only the rest (gain²/(var + ε)); dropout's mask scales both by 1/keep. Undefined for a branch with a
+ * layer it cannot follow.
+ */
+function blockTangent(ctx: OpContext, layer: GraphLayer, stashes: readonly unknown[] | undefined, q: number): BlockTangent | undefined {
+  const branch = layer.branch;
+  if (branch === undefined || stashes === undefined || stashes.length !== branch.length || !(q > 0)) return undefined;
+  let tangent = q;
+  let cross = q;
+  let signal = q;
+  let independent = 1;
+  for (let i = 0; i < branch.length; i++) {
+    const b = branch[i] as GraphLayer;
+    const stash = stashes[i];
+    switch (b.family) {
+      case "dense": {
+        const w = weightOf(b, "weight");
+        const g = ctx.variance(w) * w.fanIn;
+        tangent *= g;
+        cross *= g;
+        signal *= g;
+        independent *= g;
+        break;
+      }
+      case "activation": {
+        const s = stash as ActivationStash;
+        const name = (b.spec as ActivationLayer).activation;
+        if (name === "softmax" || !(signal > 0)) return undefined;
+        const a = cross / signal;
+        const along = tangentMoments(name, s);
+        const rest = Math.max(tangent - a * a * signal, 0);
+        tangent = a * a * along.tangent + s.derivativeSecond * rest;
+        cross = a * along.cross;
+        signal = along.output;
+        independent *= s.derivativeSecond;
+        break;
+      }
+      case "layer-norm":
+      case "rms-norm": {
+        const norm = stash as NormStash;
+        const g = norm.denominator > 0 ? norm.gainSquared / norm.denominator : 0;
+        tangent = g * Math.max(tangent - (signal > 0 ? (cross * cross) / signal : 0), 0);
+        cross = 0;
+        signal = norm.gainSquared * norm.normalisedSecond;
+        independent *= g;
+        break;
+      }
+      case "dropout": {
+        // the mask m/keep scales the tangent, the signal and a perturbation alike, each square by 1/keep
+        const keep = 1 - (b.spec as DropoutLayer).rate;
+        if (!(keep > 0)) return undefined;
+        tangent /= keep;
+        cross /= keep;
+        signal /= keep;
+        independent /= keep;
+        break;
+      }
+      default:
+        return undefined;
+    }
+  }
+  return Number.isFinite(tangent) && Number.isFinite(cross) && Number.isFinite(independent) ? { tangent, cross, signal, independent } : undefined;
 }
 
 /**
@@ -128,6 +210,8 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const ratio = input.q > 0 ? q / input.q : 0;
     const width = layer.output.layout === "features" ? layer.output.features : 1;
     const meanJacobian = meanJacobianGain(ctx, layer, branch.branchStashes);
+    // the loss's curvature, which the tangent's growth limits, exists at the start of the horizon only
+    const tangent = ctx.phase === "start" && meanJacobian !== undefined ? blockTangent(ctx, layer, branch.branchStashes, input.q) : undefined;
     if (meanJacobian !== undefined && q > 0) {
       // Cov(y) = Cov(x) + α·(Cov(x)·J̄ᵀ + J̄·Cov(x)) + α²·Cov(F) (Stein's lemma, as above): the middle terms' entries, of
       // mean zero, add E[(Cov(x)·J̄ᵀ)_ij²] = q_x²·(1 + (n − 1)·c_x)·ḡ/n each (own algebra, J̄'s entries independent)
@@ -142,7 +226,7 @@ export const residualRule: AnalyticRule<ResidualStash> = {
       role: "activation",
       inner: [],
       hazards: [],
-      stash: { input, branchQ: f.q, meanJacobian, width },
+      stash: { input, branchQ: f.q, meanJacobian, width, tangent },
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: ResidualStash, output: Gradient, branch: BranchResults): BackwardResult {
@@ -187,17 +271,62 @@ export const residualRule: AnalyticRule<ResidualStash> = {
 /**
  * M_x = M + α·M·J̄ + (α·J̄ᵀ·M + α²·E[Jᵀ·M·J]), the bracket the branch's pullback `pulled`: the diagonals add (J̄'s of
  * mean zero adds none), E[(M_ii + P_ii)²] and the rows' squares add with 2·E[M_ii]·E[P_ii] for the diagonal they share,
- * and α·M·J̄ adds α²·R·ḡ over a row, α²·R·ḡ/n on the diagonal (own algebra, J̄'s entries independent of M).
+ * and α·M·J̄ adds α²·R·ḡ over a row, α²·R·ḡ/n on the diagonal (own algebra, J̄'s entries independent of M). Where the
+ * block's tangent is known (BlockTangent), the sum carries the tangent's growth on (blockMarks): each part is taken
+ * without the limit applied above it and the sum is limited once by the excess at x (Curvature.tangentExcess).
  */
 function skipCurvature(m: Curvature, pulled: Curvature, alpha: number, stash: ResidualStash): Curvature {
-  const shared = 2 * m.diagonal * pulled.diagonal;
-  const cross = alpha * alpha * m.rowSquares * (stash.meanJacobian ?? 0);
+  const marks = blockMarks(m, alpha, stash);
+  // each part's squares carry the share of y along its tangent (limitTangent, an earlier sum): undone here, and the sum
+  // scaled once by the share at x
+  const mUnlimited = marks === undefined ? 1 : 1 / tangentShare(m.tangentExcess ?? 1, m.tangentAlong);
+  const pUnlimited = marks === undefined ? 1 : 1 / tangentShare(pulled.tangentExcess ?? 1, pulled.tangentAlong);
+  const mDiagonal = m.diagonal * Math.sqrt(mUnlimited);
+  const pDiagonal = pulled.diagonal * Math.sqrt(pUnlimited);
+  const shared = 2 * mDiagonal * pDiagonal;
+  const cross = alpha * alpha * mUnlimited * m.rowSquares * (stash.meanJacobian ?? 0);
   const sum: Curvature = {
-    diagonal: m.diagonal + pulled.diagonal,
-    diagonalSquare: m.diagonalSquare + pulled.diagonalSquare + shared + cross / stash.width,
-    rowSquares: m.rowSquares + pulled.rowSquares + shared + cross,
+    diagonal: mDiagonal + pDiagonal,
+    diagonalSquare: mUnlimited * m.diagonalSquare + pUnlimited * pulled.diagonalSquare + shared + cross / stash.width,
+    rowSquares: mUnlimited * m.rowSquares + pUnlimited * pulled.rowSquares + shared + cross,
   };
   // M·J̄ is not symmetric: no positive semidefinite bound holds for M_x
   if (m.indefinite === true || pulled.indefinite === true || cross > 0) sum.indefinite = true;
+  if (marks !== undefined) {
+    const share = tangentShare(marks.excess, marks.along);
+    if (share !== 1) {
+      sum.diagonal *= Math.sqrt(share);
+      sum.diagonalSquare *= share;
+      sum.rowSquares *= share;
+    }
+    sum.tangentExcess = marks.excess;
+    sum.tangentAbove = marks.above;
+    sum.tangentAlong = marks.along;
+  }
   return sum;
+}
+
+/**
+ * The tangent marks at a residual block's input x from those at its output v = x + α·F(x) (Curvature.tangentExcess).
+ * The tangent there is τ = x + α·J_F·x (J_F·x and F of mean zero against x, the weights' signs random): its part along
+ * v, c·v with c = E[τ·v]/E[v²], grows above as v's own tangent does (the excess at v), the rest as a perturbation
+ * independent of v (tangentAbove at v), so excess_x = c²·excess_v + (E[τ²]/E[v²] − c²)·above_v, and only the part
+ * along v holds y: along_x = c·along_v; a perturbation independent of x grows through the block by
+ * (1 + α²·ḡ_F)·q_x/q_v against the signal (own algebra, the mean-field gains of Schoenholz et al. 2017). Undefined
+ * where the branch's tangent is not known.
+ */
+function blockMarks(m: Curvature, alpha: number, stash: ResidualStash): { excess: number; above: number; along: number } | undefined {
+  const t = stash.tangent;
+  if (t === undefined) return undefined;
+  const a2 = alpha * alpha;
+  const q = stash.input.q;
+  const signal = q + a2 * t.signal;
+  if (!(signal > 0)) return undefined;
+  const tangent = q + a2 * t.tangent;
+  const c = (q + a2 * t.cross) / signal;
+  const rest = Math.max(tangent / signal - c * c, 0);
+  const excess = c * c * (m.tangentExcess ?? 1) + rest * (m.tangentAbove ?? 1);
+  const above = (m.tangentAbove ?? 1) * ((1 + a2 * t.independent) * q) / signal;
+  const along = c * (m.tangentAlong ?? 1);
+  return Number.isFinite(excess) && Number.isFinite(above) && excess > 0 && above > 0 ? { excess, above, along } : undefined;
 }
