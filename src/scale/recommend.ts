@@ -205,6 +205,10 @@ class BoundedCurves implements ScaledTensorCurves {
   // the shifted tails' levels of the start's count at 0 … 2 and the end's at 3 … 5 (they depend on the count alone),
   // made on first use
   private levels: Float64Array | undefined;
+  // the shifted tails' lower bound at roughK (overflowRiskRoughLower), and roughOf's last profile's
+  private roughK = NaN;
+  private roughLow = 0;
+  private roughLowOf = 0;
 
   constructor(
     private readonly parts: LossScaleCurveParts,
@@ -247,20 +251,40 @@ class BoundedCurves implements ScaledTensorCurves {
     return this.levels;
   }
 
-  // The shifted tails' upper bound at k (two normal tails per profile), 1 where they do not apply: rougher than
-  // overflowRiskUpper and a fraction of its cost, for the edge setter's scan, which only asks whether a tensor can
-  // reach a value found
+  // The shifted tails' upper bound at k (two normal tails per profile, read off the fixed grid of the normal tail:
+  // overflow-enclosure.ts shiftBoundsTabled), 1 where they do not apply: rougher than overflowRiskUpper and a fraction
+  // of its cost, for the edge setter's scan and the union bound's first narrowing. Their lower end comes with it
+  // (overflowRiskRoughLower): a few of them settle a union bound far over the budget.
   overflowRiskRough(k: number): number {
     const t = this.limits.overflowLevel * 2 ** -k;
     const a = this.roughOf(this.start, t, 0);
-    if (a >= 1 || this.same) return a;
-    return Math.max(a, this.roughOf(this.end, t, 3));
+    const low = this.roughLowOf;
+    if (a < 1 && !this.same) {
+      const b = this.roughOf(this.end, t, 3);
+      // the worse of two values is at least either's lower bound
+      this.roughLow = Math.max(low, this.roughLowOf);
+      this.roughK = k;
+      return Math.max(a, b);
+    }
+    this.roughLow = low;
+    this.roughK = k;
+    return a;
+  }
+
+  // the shifted tails' lower bound at k, taken with overflowRiskRough (0 where they do not apply)
+  overflowRiskRoughLower(k: number): number {
+    if (k !== this.roughK) this.overflowRiskRough(k);
+    return this.roughLow;
   }
 
   private roughOf(profile: MagnitudeProfile, t: number, at: number): number {
-    if (!enclosureApplies(profile, t)) return 1;
+    if (!enclosureApplies(profile, t)) {
+      this.roughLowOf = 0;
+      return 1;
+    }
     const levels = this.levelsOf();
-    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, PAIR, 0);
+    shiftBoundsTabled(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, PAIR, 0);
+    this.roughLowOf = PAIR[0]!;
     return PAIR[1]!;
   }
 

@@ -28,6 +28,8 @@ export interface ScaledTensorCurves {
    * edge setter's scan asks for it before overflowRiskUpper (it only asks whether a tensor can reach a value found)
    */
   overflowRiskRough?(log2Scale: number): number;
+  /** optional lower bound on overflowRisk that comes with overflowRiskRough at the same exponent, at no more cost */
+  overflowRiskRoughLower?(log2Scale: number): number;
   /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
   overflowRiskLower?(log2Scale: number): number;
   /**
@@ -129,27 +131,30 @@ export function lossScaleWindows(
   }
   const search = new WindowSearch(tensors, o, shared);
   // each id's tensors, made on the first set aside: a remedy sets aside a few tensors, looked up instead of testing
-  // every tensor against the set
-  let byId: Map<string, number[]> | undefined;
+  // every tensor against the set (an id's first tensor, then each tensor's next of the same id, −1 after the last)
+  let firstOf: Map<string, number> | undefined;
+  let nextOf: Int32Array | undefined;
   // each set aside's window, by its ids sorted: the remedies try the setters of both edges, often the same tensors
   // (the search is exact for a set, so a window found once is the window)
   const found = new Map<string, ScaleWindow>();
+  const active = new Uint8Array(tensors.length);
   const windows: WindowsOf = (setAside) => {
     const key = setAside === undefined || setAside.size === 0 ? "" : JSON.stringify([...setAside].sort());
     const known = found.get(key);
     if (known !== undefined) return { ...known };
-    const active = new Uint8Array(tensors.length).fill(1);
+    active.fill(1);
     if (setAside !== undefined && setAside.size > 0) {
-      if (byId === undefined) {
-        const made = new Map<string, number[]>();
-        tensors.forEach((t, i) => {
-          const same = made.get(t.id);
-          if (same === undefined) made.set(t.id, [i]);
-          else same.push(i);
-        });
-        byId = made;
+      if (firstOf === undefined || nextOf === undefined) {
+        firstOf = new Map();
+        nextOf = new Int32Array(tensors.length).fill(-1);
+        for (let i = tensors.length - 1; i >= 0; i--) {
+          const id = (tensors[i] as ScaledTensorCurves).id;
+          const after = firstOf.get(id);
+          if (after !== undefined) nextOf[i] = after;
+          firstOf.set(id, i);
+        }
       }
-      for (const id of setAside) for (const i of byId.get(id) ?? []) active[i] = 0;
+      for (const id of setAside) for (let i = firstOf.get(id) ?? -1; i >= 0; i = nextOf[i] as number) active[i] = 0;
     }
     const window = search.window(active);
     found.set(key, window);
@@ -236,6 +241,9 @@ class WindowSearch {
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
   private readonly pair = new Float64Array(2);
+  // the table of each curve last asked for
+  private lastOverflow: Table | undefined;
+  private lastFlush: Table | undefined;
   // scratch of one union-bound test (riskWithinByBounds): each tensor's bounds, its state, and their sums
   private readonly lows: Float64Array;
   private readonly highs: Float64Array;
@@ -295,9 +303,10 @@ class WindowSearch {
     // the window's overflow edge is at or below every tensor's own: start from the tightest guess (any start gives
     // the same edge; a good one saves steps)
     let overflowGuess = Infinity;
-    this.tensors.forEach((t, i) => {
+    for (let i = 0; i < this.n; i++) {
+      const t = this.tensors[i] as ScaledTensorCurves;
       if (active[i] === 1 && t.edgeGuessesLog2 !== undefined) overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
-    });
+    }
     const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
     // highest k with the union bound within the budget (monotone: true then false as k grows)
     const highest = lastTrue(o.lowestLog2, o.highestLog2, (k) => this.riskWithin(k, active), Number.isFinite(overflowGuess) ? overflowGuess : middle);
@@ -333,6 +342,16 @@ class WindowSearch {
 
   private table(curve: Curve, at: number): Table {
     const k = curve === "flush" ? at + this.flushShift : at;
+    // the searches ask for one exponent many times in a row
+    const last = curve === "overflow" ? this.lastOverflow : this.lastFlush;
+    if (last !== undefined && last.k === k) return last;
+    const table = this.tableAt(curve, k);
+    if (curve === "overflow") this.lastOverflow = table;
+    else this.lastFlush = table;
+    return table;
+  }
+
+  private tableAt(curve: Curve, k: number): Table {
     // (the curve's records read by name: a key that varies makes every read a keyed look-up)
     const tables = curve === "overflow" ? this.tables.overflow : this.tables.flush;
     let table = tables.get(k);
@@ -405,14 +424,19 @@ class WindowSearch {
 
   // Bounds [pair[0], pair[1]] on tensor i's value at k from everything known of it at any exponent: the overflow risk
   // grows with k (what is known below k bounds it from below, above k from above), the flushed share falls.
+  // (the found bounds read back where nothing was learnt since: small, so that the scans over every tensor inline it)
   private known(curve: Curve, at: number, i: number, here: Table): Float64Array {
-    const rising = curve === "overflow";
-    const version = ((rising ? this.versions.overflow : this.versions.flush)[i] as number) + 1;
+    const version = ((curve === "overflow" ? this.versions.overflow : this.versions.flush)[i] as number) + 1;
     if (here.knownVersion !== undefined && here.knownVersion[i] === version) {
       this.pair[0] = here.knownLo![i] as number;
       this.pair[1] = here.knownHi![i] as number;
       return this.pair;
     }
+    return this.knownAfresh(curve, at, i, here, version);
+  }
+
+  private knownAfresh(curve: Curve, at: number, i: number, here: Table, version: number): Float64Array {
+    const rising = curve === "overflow";
     let lo = -Infinity;
     let hi = Infinity;
     const k = rising ? at : at + this.flushShift;
@@ -652,30 +676,34 @@ class WindowSearch {
     this.state[i] = 2;
   }
 
-  // the rougher upper bound at k, once, kept as the cheap bounds' high (a probability's low 0 where there were none);
-  // false when the curve has none or it was taken
+  // the rougher bounds at k, once, kept as the cheap bounds (a probability's low 0 where there were none); false when
+  // the curve has none or they were taken
   private roughen(k: number, i: number, table: Table): boolean {
     if (((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) !== 0) return false;
     const rough = this.takeRough(k, i, table);
     if (rough === undefined) return false;
-    this.setBounds(i, this.lows[i] as number, Math.max(this.lows[i] as number, rough));
+    const low = Math.max(this.lows[i] as number, table.data[4 * i] as number);
+    this.setBounds(i, low, Math.max(low, rough));
     return true;
   }
 
-  // the curve's rougher overflow bound at k taken into the table (marked as asked, the high lowered to it, a low of 0
-  // where the table had no bounds); undefined when the curve has none
+  // the curve's rougher overflow bounds at k taken into the table (marked as asked, the high lowered to the upper, the
+  // low raised to the lower, a low of 0 where the table had no bounds); undefined when the curve has none
   private takeRough(k: number, i: number, table: Table): number | undefined {
     const flags = table.flags[i] as number;
-    const rough = (this.tensors[i] as ScaledTensorCurves).overflowRiskRough?.(k);
+    const t = this.tensors[i] as ScaledTensorCurves;
+    const rough = t.overflowRiskRough?.(k);
     table.flags[i] = flags | HAS_ROUGH;
     if (rough === undefined) return undefined;
+    const lower = t.overflowRiskRoughLower?.(k) ?? 0;
     if ((flags & HAS_BOUNDS) === 0) {
-      table.data[4 * i] = 0;
+      table.data[4 * i] = lower;
       table.data[4 * i + 1] = rough;
       table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
       this.mark("overflow", table, i);
-    } else if (rough < (table.data[4 * i + 1] as number)) {
-      table.data[4 * i + 1] = rough;
+    } else if (rough < (table.data[4 * i + 1] as number) || lower > (table.data[4 * i] as number)) {
+      if (rough < (table.data[4 * i + 1] as number)) table.data[4 * i + 1] = rough;
+      if (lower > (table.data[4 * i] as number)) table.data[4 * i] = lower;
       this.mark("overflow", table, i);
     }
     return rough;
@@ -762,10 +790,13 @@ class WindowSearch {
 
   // Whether one tensor's flushed share at k is within the tolerance, deciding by what is known of it (at k or, the
   // share falling with k, at other exponents) where it can.
-  private tolerated(k: number, i: number): boolean {
-    const table = this.table("flush", k);
+  private tolerated(k: number, i: number, table = this.table("flush", k)): boolean {
     const flags = table.flags[i] as number;
     if ((flags & TOLERANCE_KNOWN) !== 0) return (flags & TOLERATED) !== 0;
+    return this.toleratedAfresh(k, i, table, flags);
+  }
+
+  private toleratedAfresh(k: number, i: number, table: Table, flags: number): boolean {
     const tolerance = this.o.flushTolerance;
     let ok: boolean | undefined;
     // tolerated below k: tolerated at k; not tolerated above k: not at k
@@ -799,13 +830,17 @@ class WindowSearch {
   private flushEdge(active: Uint8Array): number | null {
     const { lowestLog2: lo, highestLog2: hi } = this.o;
     let edge = lo;
-    for (const i of this.flushOrder) {
-      if (active[i] === 0 || this.tolerated(edge, i)) continue;
+    let table = this.table("flush", edge);
+    const order = this.flushOrder;
+    for (let r = 0; r < order.length; r++) {
+      const i = order[r] as number;
+      if (active[i] === 0 || this.tolerated(edge, i, table)) continue;
       if (edge === hi) return null;
       const guess = (this.tensors[i] as ScaledTensorCurves).edgeGuessesLog2?.flush ?? edge + 1;
       const own = firstTrue(edge + 1, hi, (k) => this.tolerated(k, i), guess);
       if (own === null) return null;
       edge = own;
+      table = this.table("flush", edge);
     }
     return edge;
   }

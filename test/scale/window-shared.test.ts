@@ -72,8 +72,9 @@ function curves(shapes: readonly Shape[], shift = 0, growth = true): ScaledTenso
       flushedEnergyBounds: (k: number) => widen(flushedEnergy(k)),
       edgeGuessesLog2: { overflow: Math.round(s.overflowCentre) + s.guess, flush: Math.round(s.flushCentre) - shift - s.guess },
       ...(growth ? { flushedEnergyGrowth: Math.exp(s.slope) * (1 + 1e-9) } : {}),
-      // a rougher upper bound, between the cheap bounds and the value
+      // rougher bounds, between the cheap bounds and the value
       overflowRiskRough: (k: number) => Math.min(1, overflowRisk(k) * (1 + 10 * s.slack) + s.slack / 10),
+      overflowRiskRoughLower: (k: number) => overflowRisk(k) * (1 - s.slack / 2),
     };
   });
 }
@@ -148,7 +149,7 @@ describe("the tables' bits", () => {
 });
 
 describe("overflowRiskRough", () => {
-  it("bounds the gradient curves' overflow risk from above at every exponent", () => {
+  it("bounds the gradient curves' overflow risk from above, and its lower end from below, at every exponent", () => {
     const limits = limitsFor({ gradients: "binary16" } as PrecisionPlan, "binary16");
     const tensors: TensorPrediction[] = [];
     for (const shape of ["gaussian", "half-gaussian", "bounded", "uniform"] as const) {
@@ -162,9 +163,19 @@ describe("overflowRiskRough", () => {
         tensors.push({ id: `g${tensors.length}`, role: "weight-gradient", start: p(startRms, s0), end: p(endRms, s1) } as TensorPrediction);
       }
     }
+    let informative = 0;
     for (const c of boundedLossScaleCurves(tensors, limits)) {
-      for (let k = -40; k <= 64; k += 2) expect(c.overflowRiskRough!(k)).toBeGreaterThanOrEqual(c.overflowRisk(k));
+      for (let k = -40; k <= 64; k += 2) {
+        if (c.overflowRiskRoughLower!(k) > 0) informative++;
+        const value = c.overflowRisk(k);
+        expect(c.overflowRiskRough!(k)).toBeGreaterThanOrEqual(value);
+        expect(c.overflowRiskRoughLower!(k)).toBeLessThanOrEqual(value);
+      }
+      // asked apart from the upper end, at an exponent other than the last one asked
+      expect(c.overflowRiskRoughLower!(3)).toBeLessThanOrEqual(c.overflowRisk(3));
     }
+    // the lower end says something where the shifted tails apply (not 0 throughout)
+    expect(informative).toBeGreaterThan(20);
   });
 });
 
