@@ -3,7 +3,7 @@
 // Exit code 1 when some spec is at risk or fails, 2 when some file is not a valid spec.
 import { readdir } from "node:fs/promises";
 import { join } from "node:path";
-import { check, CheckInputError, formatSpecIssue, formatSpecPath, loadSpec } from "headroom";
+import { check, CheckInputError, formatSpecIssue, loadSpec, positionIssues } from "headroom";
 
 const folder = process.argv[2] ?? "specs";
 const files = (await readdir(folder)).filter((name) => /\.ya?ml$/.test(name)).sort();
@@ -24,7 +24,7 @@ for (const name of files) {
     if (!(error instanceof CheckInputError)) throw error;
     invalid += 1;
     // the issues name spec paths; the loaded file positions them (file:line:column)
-    const positioned = error.issues.map((issue) => ({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }));
+    const positioned = positionIssues(loaded.locate, error.issues);
     console.log(`${name}: the network cannot be built: ${positioned.map(formatSpecIssue).join("; ")}`);
     continue;
   }

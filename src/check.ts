@@ -14,7 +14,7 @@ import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "
 import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
 import { scaledFindings, weighPick } from "./scale/pick.js";
-import { formatSpecPath, loadSpec, type SpecIssue, type SpecPosition } from "./spec/index.js";
+import { loadSpec, positionIssues, type SpecIssue, type SpecPosition } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan, SpecPath } from "./spec/types.js";
 
 /** A spec whose tensor graph cannot be built; `issues` name the spec paths. */
@@ -423,7 +423,7 @@ export async function loadSpecMeasurements(spec: NetworkSpec, cache?: Map<string
  * as issues positioned at the spec's `measured` section.
  */
 export function measuredIssues(problems: readonly string[], locate: (path: SpecPath) => SpecPosition): SpecIssue[] {
-  return problems.map((message) => ({ ...locate(["measured"]), path: "measured", message }));
+  return positionIssues(locate, problems.map((message) => ({ path: ["measured"], message })));
 }
 
 /**
@@ -469,7 +469,7 @@ export async function checkFile(path: string, options: CheckAnswerOptions = {}):
     if (error instanceof CheckInputError || error instanceof PredictionRangeError) {
       return {
         ok: false,
-        issues: error.issues.map((issue) => ({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message })),
+        issues: positionIssues(loaded.locate, error.issues),
       };
     }
     throw error;

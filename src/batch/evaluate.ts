@@ -4,7 +4,7 @@
  * thread, the library and the tests share this code.
  */
 import { UnknownPlanError } from "../check.js";
-import { formatSpecIssue, formatSpecPath, parseSpec, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
+import { formatSpecIssue, parseSpec, positionIssues, type NetworkSpec, type SpecIssue, type SpecPath, type SpecPosition } from "../spec/index.js";
 import { readSpecFile } from "../spec/parse.js";
 import { oneProblem, type ErrorPosition, type RowError, type SpecSummary } from "./types.js";
 import { varyText, VaryError, type Variant, type VariedText } from "./vary.js";
@@ -76,15 +76,11 @@ function issuePosition(issue: SpecIssue): ErrorPosition {
 function positionedIssues(error: unknown, locate: (path: SpecPath) => SpecPosition, file: string): SpecIssue[] | undefined {
   const issues = (error as { issues?: unknown } | null)?.issues;
   if (!Array.isArray(issues) || issues.length === 0) return undefined;
-  const out: SpecIssue[] = [];
   for (const issue of issues as unknown[]) {
-    const path = (issue as { path?: unknown }).path;
-    const message = (issue as { message?: unknown }).message;
+    const { path, message } = issue as { path?: unknown; message?: unknown };
     if (!Array.isArray(path) || typeof message !== "string") return undefined;
-    const at = locate(path as SpecPath);
-    out.push({ ...at, file: at.file || file, path: formatSpecPath(path as SpecPath), message });
   }
-  return out;
+  return positionIssues(locate, issues as { path: SpecPath; message: string }[]).map((issue) => (issue.file ? issue : { ...issue, file }));
 }
 
 /**

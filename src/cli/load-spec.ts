@@ -1,7 +1,7 @@
 /** Loading one spec file for a command, with its problems reported the way every command reports them. */
 import { loadSpecMeasurements, measuredIssues, measuredNetwork, type MeasuredNetwork } from "../check.js";
 import type { GraphIssue } from "../graph/index.js";
-import { formatSpecIssue, formatSpecPath, loadSpec, type SpecIssue, type SpecResult } from "../spec/index.js";
+import { formatSpecIssue, loadSpec, positionIssues, type SpecIssue, type SpecResult } from "../spec/index.js";
 import { EXIT, raiseExitCode } from "./errors.js";
 
 /**
@@ -21,9 +21,7 @@ export async function loadSpecReporting(path: string): Promise<Extract<SpecResul
 
 /** The problems of a loaded spec's network (it cannot be built), positioned in its file; sets the input-error exit code. */
 export function reportGraphIssues(loaded: Extract<SpecResult, { ok: true }>, issues: readonly GraphIssue[]): void {
-  for (const issue of issues) {
-    process.stderr.write(formatSpecIssue({ ...loaded.locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }) + "\n");
-  }
+  for (const issue of positionIssues(loaded.locate, issues)) process.stderr.write(formatSpecIssue(issue) + "\n");
   raiseExitCode(EXIT.inputError);
 }
 

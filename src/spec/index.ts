@@ -2,7 +2,7 @@
 export type * from "./types.js";
 export { ACTIVATIONS } from "./types.js";
 export { parseSpec, loadSpec, MAX_SPEC_BYTES, type SpecResult } from "./parse.js";
-export { formatSpecIssue, formatSpecPath, type SpecIssue, type SpecPosition } from "./issues.js";
+export { formatSpecIssue, formatSpecPath, positionIssues, type SpecIssue, type SpecPosition } from "./issues.js";
 export {
   specJsonSchema,
   specJsonSchemaText,

@@ -44,6 +44,16 @@ export function formatSpecIssue(issue: SpecIssue): string {
   return issue.path === "" ? `${where}: ${issue.message}` : `${where}: ${issue.path}: ${issue.message}`;
 }
 
+/**
+ * Issues that name spec paths (the problems of a network that cannot be built: check's CheckInputError, the graph's
+ * issues), positioned in the spec's file by the loaded spec's `locate` (file:line:column) and their paths rendered.
+ * @example positionIssues(loaded.locate, [{ path: ["layers", 1, "width"], message: "must be at least 1, got 0" }])
+ * // => [{ file: "a.yaml", line: 4, column: 12, path: "layers[1].width", message: "must be at least 1, got 0" }]
+ */
+export function positionIssues(locate: (path: SpecPath) => SpecPosition, issues: readonly { path: SpecPath; message: string }[]): SpecIssue[] {
+  return issues.map((issue) => ({ ...locate(issue.path), path: formatSpecPath(issue.path), message: issue.message }));
+}
+
 /** Edit distance (insertions, deletions, substitutions, adjacent swaps), for "did you mean" hints. */
 function editDistance(a: string, b: string): number {
   const rows = a.length + 1;

@@ -1,6 +1,6 @@
 import { execFileSync, spawnSync } from "node:child_process";
 import { createHash } from "node:crypto";
-import { cpSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { cpSync, mkdirSync, mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, test } from "vitest";
@@ -69,6 +69,23 @@ describe("the packed package, installed by name", () => {
     expect(printed).toEqual(atRisk);
     expect(run.stdout).toContain(`${atRisk.length} of ${names.length} specs at risk or failing; 0 invalid.`);
     expect(run.status).toBe(atRisk.length > 0 ? 1 : 0);
+  });
+
+  test("the README's example positions the problems of a network that cannot be built (file:line:column)", () => {
+    const folder = join(project, "unbuildable");
+    mkdirSync(folder);
+    const fixture = join(ROOT, "test", "fixtures", "specs", "unbuildable", "batch-norm-one-pixel.yaml");
+    cpSync(fixture, join(folder, "kiln.yaml"));
+    const run = spawnSync(process.execPath, ["examples/at-risk.mjs", folder], { cwd: project, encoding: "utf8" });
+    expect(run.stderr).toBe("");
+    // expected: the command line's own positioned problems for the same file (one per line on stderr)
+    const cli = spawnSync(process.execPath, [join(ROOT, "bin", "headroom.js"), "check", join(folder, "kiln.yaml")], { encoding: "utf8" });
+    expect(cli.status).toBe(2);
+    const problems = cli.stderr.trim().split("\n");
+    expect(problems[0]).toMatch(/kiln\.yaml:\d+:\d+: blocks\.settle\[0\]: /);
+    expect(run.stdout).toContain(`kiln.yaml: the network cannot be built: ${problems.join("; ")}\n`);
+    expect(run.stdout).toContain("0 of 1 specs at risk or failing; 1 invalid.");
+    expect(run.status).toBe(2);
   });
 
   test("the README shows examples/at-risk.mjs as it is", () => {

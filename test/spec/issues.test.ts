@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import { closestWord, didYouMean, didYouMeanFormat } from "../../src/spec/issues.js";
-import { formatSpecIssue, formatSpecPath } from "../../src/spec/index.js";
+import { formatSpecIssue, formatSpecPath, parseSpec, positionIssues } from "../../src/spec/index.js";
 
 describe("formatSpecPath(path)", () => {
   it("writes list indexes in brackets and keys with dots, as a reader finds them in YAML", () => {
@@ -24,6 +24,29 @@ describe("formatSpecIssue(issue)", () => {
   it("leaves out an unknown position and an empty path", () => {
     expect(formatSpecIssue({ file: "a.yaml", line: 0, column: 0, path: "", message: "no such file" })).toBe("a.yaml: no such file");
     expect(formatSpecIssue({ file: "a.yaml", line: 1, column: 1, path: "", message: "the spec is empty" })).toBe("a.yaml:1:1: the spec is empty");
+  });
+});
+
+describe("positionIssues(locate, issues)", () => {
+  it("puts each spec path at its key's line and column in the file, the path rendered as formatSpecPath renders it", () => {
+    // an invented greenhouse sensor; the second layer's width value sits on line 6 at column 27 (counted by hand,
+    // 1-based as editors count them; common practice)
+    const text = [
+      "name: greenhouse",
+      "input: { features: 8 }",
+      "training: { batch: 4, loss: { kind: mean-squared-error } }",
+      "layers:",
+      "  - { type: dense, width: 8 }",
+      "  - { type: dense, width: 1, init: he-normal }",
+    ].join("\n");
+    const parsed = parseSpec(text, "greenhouse.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map(formatSpecIssue).join("; "));
+    const issues = positionIssues(parsed.locate, [
+      { path: ["layers", 1, "width"], message: "too narrow" },
+      { path: [], message: "the whole document" },
+    ]);
+    expect(issues[0]).toEqual({ file: "greenhouse.yaml", line: 6, column: 27, path: "layers[1].width", message: "too narrow" });
+    expect(issues[1]).toMatchObject({ file: "greenhouse.yaml", path: "", message: "the whole document" });
   });
 });
 
