@@ -184,6 +184,16 @@ describe("simulation engine", () => {
     const one = runSimulation(spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  accumulation-steps: 1")), { microBatches: 1 });
     expect(one.assumptions.join(" ")).toContain("(1 accumulation step × 2 workers)");
     expect(one.assumptions.join(" ")).toContain("√(2/1)");
+    // and the sums follow it: the one micro-batch run is the single worker's own (same seed, same draws), and with the
+    // workers' gradients summed its weight gradients come out times √2, as a sum of independent terms grows (Bienaymé:
+    // their variances add); averaged, the sum is then halved
+    const summed = runSimulation(spec(MLP.replace("batch: 16", "batch: 16\n  workers: 2\n  worker-gradients: sum")), { microBatches: 1 });
+    const single = runSimulation(spec(MLP));
+    const rms = (r: typeof one, id: string): number => r.tensors.find((t) => t.id === id)!.median.rms;
+    for (const id of ["dense-0/weight-gradient", "classes/weight-gradient"]) {
+      expect(rms(summed, id) / rms(single, id)).toBeCloseTo(Math.SQRT2, 12);
+      expect(rms(one, id) / rms(single, id)).toBeCloseTo(Math.SQRT2 / 2, 12);
+    }
   });
 
   it("sizes the sum of the micro-batches not run by the mean and the spread of those run (E‖S_N‖² = N²‖μ‖² + N·tr σ²)", () => {
@@ -204,8 +214,10 @@ describe("simulation engine", () => {
     const k = missingScale(sum, squares, run, 64);
     const expected = 64 * 64 * 4 + 64 * 1;
     expect(Math.abs(Math.log2((k * k * norm) / expected))).toBeLessThan(0.05);
-    // the √ rule (independent micro-batches) would be 8× too small here, 3 binades
-    expect(Math.log2(expected / ((64 / run) * norm))).toBeGreaterThan(2.5);
+    // and not the √ rule's: independent micro-batches (Bienaymé: the variance of a sum of independent terms is the
+    // sum of their variances) would scale the sum by √(N/m) and leave it ~8× short in squared norm here, 3 binades; a
+    // missingScale that fell back to that rule whatever the spread would fail this
+    expect(Math.log2((k * k) / (64 / run))).toBeGreaterThan(2.5);
     // pure noise: the sum grows as √N
     const noiseOnly = new Float64Array(n);
     let noiseSquares = 0;
