@@ -3,7 +3,8 @@
  * and run the pool. Path expansion reads folders here; everything else in src/batch is pure or
  * runs in the worker.
  */
-import { readdirSync, statSync } from "node:fs";
+import { readdirSync, readFileSync, statSync } from "node:fs";
+import { MAX_SPEC_BYTES } from "../spec/index.js";
 import { expandInputs, type PathHost } from "./paths.js";
 import { runBatch, type RunBatchOptions } from "./run.js";
 import type { BatchRow } from "./types.js";
@@ -29,6 +30,14 @@ export const nodePathHost: PathHost = {
       return [];
     }
   },
+  read(path) {
+    try {
+      // a file above the spec size limit is not read here: its row says it is too large, as for a .yaml file
+      return statSync(path).size > MAX_SPEC_BYTES ? undefined : readFileSync(path, "utf8");
+    } catch {
+      return undefined;
+    }
+  },
 };
 
 /** Options of {@link batchCheck}. */
@@ -42,7 +51,7 @@ export interface BatchCheckOptions extends Pick<RunBatchOptions, "workers" | "wo
 }
 
 /**
- * Check every spec that `paths` name (files, folders searched for *.yaml/*.yml/*.json, globs with * ? **)
+ * Check every spec that `paths` name (files, folders searched for *.yaml/*.yml and JSON specs, globs with * ? **)
  * on a pool of worker threads. Resolves to one row per spec (or variant) in input order; bad files
  * and specs are rows with positioned errors. Throws a VaryError for a malformed `vary` option.
  * @example (await batchCheck(["specs"])).filter((row) => row.status === "ok" && row.summary.verdict !== "fits")

@@ -1,6 +1,6 @@
 /** Public exports of src/batch: inputs, variations and the worker pool behind `headroom batch`. */
 export { globToRegExp, hasGlob } from "./glob.js";
-export { expandInputs, pathsFromText, specFilesIn } from "./paths.js";
+export { expandInputs, isJsonSpec, pathsFromText, specFilesIn } from "./paths.js";
 export type { BatchInput, ExpandOptions, PathHost } from "./paths.js";
 export { parseKeyPath, parseVaryOption, schemaHasPath, variantsOf, varyText, VaryError, yamlScalarText } from "./vary.js";
 export type { Variant, VariedText, VaryAxis, VaryValue } from "./vary.js";

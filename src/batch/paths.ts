@@ -1,6 +1,6 @@
 /**
  * Turning batch arguments into a list of spec files: files as given, folders searched recursively for
- * *.yaml / *.yml / *.json, globs, and `-` for a list of paths read from stdin. The file system is passed in,
+ * *.yaml / *.yml and JSON specs, globs, and `-` for a list of paths read from stdin. The file system is passed in,
  * so this stays pure and testable; the CLI passes node:fs.
  */
 import { resolve } from "node:path";
@@ -12,6 +12,11 @@ export interface PathHost {
   kind(path: string): "file" | "folder" | "other" | undefined;
   /** the entries of a folder: names only, with whether each is a folder (symbolic links to folders count as "link") */
   list(path: string): readonly { name: string; kind: "file" | "folder" | "link" | "other" }[];
+  /**
+   * the text of a file, to tell a JSON spec in a folder from the other JSON kept beside specs ({@link isJsonSpec});
+   * undefined when it cannot be read. A host without it has every .json file a folder holds read as a spec
+   */
+  read?(path: string): string | undefined;
 }
 
 /** One spec file to evaluate, or an argument that gave none. */
@@ -29,6 +34,25 @@ export interface ExpandOptions {
 const SPEC_FILE = /\.(?:ya?ml|json)$/i;
 // a JSON Schema, such as the one `headroom schema` writes beside the specs (specs/network-spec.schema.json): not a spec
 const SCHEMA_FILE = /\.schema\.json$/i;
+const JSON_FILE = /\.json$/i;
+
+/**
+ * Whether a .json file a folder holds is read as a spec: when its top level is a mapping with `layers`, the key every
+ * spec has, or when it is not JSON (read as YAML, its row then says what is wrong with it, as for a file that cannot be
+ * read: `undefined`). JSON of any other shape kept beside the specs is left out: results saved by `check --json`,
+ * `simulate --json` or `scan --json`, recorded statistics, a package.json.
+ * @example isJsonSpec('{"name": "mlp", "layers": []}') // => true; isJsonSpec('{"version": 2, "verdict": "fits"}') // => false
+ */
+export function isJsonSpec(text: string | undefined): boolean {
+  if (text === undefined) return true;
+  let value: unknown;
+  try {
+    value = JSON.parse(text.charCodeAt(0) === 0xfeff ? text.slice(1) : text);
+  } catch {
+    return true;
+  }
+  return typeof value === "object" && value !== null && !Array.isArray(value) && Object.hasOwn(value, "layers");
+}
 
 /** Split text read from stdin into paths: one per line; blank lines and lines starting with `#` are skipped. */
 export function pathsFromText(text: string): string[] {
@@ -47,8 +71,9 @@ function joinPath(folder: string, name: string): string {
 const byName = (a: { name: string }, b: { name: string }): number => (a.name < b.name ? -1 : a.name > b.name ? 1 : 0);
 
 /**
- * Every *.yaml / *.yml / *.json file below `folder` but JSON Schemas (*.schema.json), sorted, depth first. Folders
- * whose names start with "." and node_modules are skipped; symbolic links to folders are not followed (they could loop).
+ * Every *.yaml / *.yml file below `folder` and every *.json file that is a spec ({@link isJsonSpec}; never a JSON
+ * Schema, *.schema.json), sorted, depth first. Folders whose names start with "." and node_modules are skipped;
+ * symbolic links to folders are not followed (they could loop).
  */
 export function specFilesIn(host: PathHost, folder: string): string[] {
   const found: string[] = [];
@@ -58,7 +83,7 @@ export function specFilesIn(host: PathHost, folder: string): string[] {
       if (entry.kind === "folder") {
         if (!entry.name.startsWith(".") && entry.name !== "node_modules") walk(path);
       } else if (SPEC_FILE.test(entry.name) && !SCHEMA_FILE.test(entry.name) && (entry.kind === "file" || (entry.kind === "link" && host.kind(path) === "file"))) {
-        found.push(path);
+        if (!JSON_FILE.test(entry.name) || host.read === undefined || isJsonSpec(host.read(path))) found.push(path);
       }
     }
   };
@@ -110,7 +135,7 @@ export function expandInputs(host: PathHost, args: readonly string[], options: E
     if (kind === "folder") {
       const files = specFilesIn(host, argument);
       if (files.length === 0) {
-        out.push({ kind: "error", argument, message: `${argument}: the folder holds no .yaml, .yml or .json files` });
+        out.push({ kind: "error", argument, message: `${argument}: the folder holds no .yaml or .yml files, nor .json specs` });
       }
       for (const file of files) addFile(file, argument);
       return;

@@ -3,7 +3,7 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { describe, expect, test } from "vitest";
 import { nodePathHost } from "../../src/batch/files.js";
-import { expandInputs, pathsFromText, specFilesIn, type PathHost } from "../../src/batch/paths.js";
+import { expandInputs, isJsonSpec, pathsFromText, specFilesIn, type PathHost } from "../../src/batch/paths.js";
 
 /** An in-memory file system: paths ending in "/" are folders. */
 function memoryHost(paths: string[], links: Record<string, string> = {}): PathHost {
@@ -88,7 +88,7 @@ describe("expandInputs", () => {
       { kind: "error", argument: "missing.yaml", message: "missing.yaml: no such file or folder" },
       { kind: "file", path: "specs/b.yaml", argument: "specs/b.yaml" },
       { kind: "error", argument: "nothing/*.yaml", message: "nothing/*.yaml: no file matches this pattern" },
-      { kind: "error", argument: "empty", message: "empty: the folder holds no .yaml, .yml or .json files" },
+      { kind: "error", argument: "empty", message: "empty: the folder holds no .yaml or .yml files, nor .json specs" },
     ]);
   });
   test("- reads the paths listed on stdin, in place", () => {
@@ -103,6 +103,52 @@ describe("expandInputs", () => {
   test("symbolic links to files are followed, links to folders are not walked", () => {
     const host = memoryHost(["real/a.yaml", "top/"], { "top/link.yaml": "real/a.yaml", "top/loop": "top" });
     expect(specFilesIn(host, "top")).toEqual(["top/link.yaml"]);
+  });
+});
+
+describe("JSON in a folder of specs", () => {
+  // what a spec folder holds beside its specs (README "Checking many specs"): results saved by check --json, simulate
+  // --json and scan --json, recorded statistics, a package.json. A spec always has `layers` (its schema requires it).
+  test("a .json file is a spec when its top level is a mapping with layers, or when it is not JSON at all", () => {
+    expect(isJsonSpec('{ "name": "kelp", "input": { "features": 8 }, "layers": [] }')).toBe(true);
+    // a byte-order mark, as some editors write it (U+FEFF at the start as a signature: Unicode Standard §23.8, from memory)
+    expect(isJsonSpec('\uFEFF{ "layers": [{ "type": "dense", "width": 4 }] }')).toBe(true);
+    // not JSON: read as YAML, the spec's own errors say what is wrong (a truncated file among them)
+    expect(isJsonSpec('{ "name": "kelp", "layers": [')).toBe(true);
+    expect(isJsonSpec(undefined)).toBe(true);
+    // check --json, simulate --json and scan --json results (their top-level keys), statistics, a package.json
+    expect(isJsonSpec('{ "version": 2, "spec": { "name": "kelp" }, "verdict": "fits", "tensors": [] }')).toBe(false);
+    expect(isJsonSpec('{ "spec": "kelp", "plan": "half", "tensors": [], "history": [] }')).toBe(false);
+    expect(isJsonSpec('{ "files": [], "tensors": [] }')).toBe(false);
+    expect(isJsonSpec('[{ "tensor": "dense-0/activation", "rms": 1 }]')).toBe(false);
+    expect(isJsonSpec('{ "name": "kelp-survey", "private": true, "dependencies": {} }')).toBe(false);
+    expect(isJsonSpec("null")).toBe(false);
+  });
+
+  test("a folder's JSON that is no spec is left out; JSON named as a file or by a glob is read as given", () => {
+    const dir = mkdtempSync(join(tmpdir(), "headroom-json-"));
+    try {
+      const folder = join(dir, "kelp");
+      mkdirSync(folder);
+      const spec = "name: kelp\ninput: { features: 8 }\ntraining: { batch: 4, loss: { kind: mean-squared-error } }\nlayers: [{ type: dense, width: 1 }]\n";
+      writeFileSync(join(folder, "kelp.yaml"), spec);
+      writeFileSync(join(folder, "kelp-wide.json"), JSON.stringify({ name: "kelp-wide", input: { features: 8 }, layers: [{ type: "dense", width: 64 }] }));
+      writeFileSync(join(folder, "kelp.check.json"), JSON.stringify({ version: 2, spec: { name: "kelp" }, verdict: "fits", formats: [], tensors: [] }));
+      writeFileSync(join(folder, "package.json"), JSON.stringify({ name: "kelp-survey", private: true }));
+      writeFileSync(join(folder, "broken.json"), '{ "name": "kelp", "layers": [');
+      const found = expandInputs(nodePathHost, [folder]).map((input) => (input.kind === "file" ? input.path : input.message));
+      expect(found).toEqual([join(folder, "broken.json"), join(folder, "kelp-wide.json"), join(folder, "kelp.yaml")]);
+      // asked for by name or by a pattern, a JSON file is the user's choice: its row says it is not a spec
+      const named = expandInputs(nodePathHost, [join(folder, "kelp.check.json"), `${folder}/*.check.json`]);
+      expect(named.map((input) => (input.kind === "file" ? input.path : input.message))).toEqual([join(folder, "kelp.check.json")]);
+      // a folder of saved results alone gives no spec, and says so
+      const results = join(dir, "results");
+      mkdirSync(results);
+      writeFileSync(join(results, "kelp.check.json"), JSON.stringify({ version: 2, verdict: "fits" }));
+      expect(expandInputs(nodePathHost, [results])).toEqual([{ kind: "error", argument: results, message: `${results}: the folder holds no .yaml or .yml files, nor .json specs` }]);
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
   });
 });
 

@@ -6,7 +6,7 @@ import { lazyAction, planOption, varyOption } from "./define.js";
 export const register: RegisterCommand = (program) => {
   program
     .command("batch")
-    .argument("<paths...>", "spec files, folders (searched for *.yaml, *.yml and *.json), globs (* ? **), or - to read paths from stdin")
+    .argument("<paths...>", "spec files, folders (searched for *.yaml, *.yml and JSON specs), globs (* ? **), or - to read paths from stdin")
     .description(
       "Check many network specs at once, in parallel: one row per spec with its verdict per format, the loss-scale pick " +
         "and window, and the worst tensor. A bad spec is reported in its row, every problem listed with its " +
