@@ -211,6 +211,30 @@ const HAS_ROUGH = 32;
 const ACROSS = 1e-9;
 type Curve = "overflow" | "flush";
 
+// What a search knows of one curve: its tables by exponent (for the flush curve: k + flushShift), ascending by it, the
+// first 32 made and per tensor a bit for each that knows something of it (`known` visits those alone: a tensor is
+// known at a few exponents of the many the search visits; past 32 tables, all of them), and per tensor how many times
+// something was learnt of it at any exponent.
+interface Knowledge {
+  tables: Map<number, Table>;
+  sorted: Table[];
+  byBit: Table[];
+  infoBits: Uint32Array;
+  versions: Uint32Array;
+}
+// The flush curve's, with per tensor the lowest key where its flushing was found tolerated (+∞: none) and the highest
+// where it was not (−∞: none): a share falling with k is tolerated above the one and not below the other.
+interface FlushKnowledge extends Knowledge {
+  toleratedFrom: Float64Array;
+  untoleratedTo: Float64Array;
+}
+function knowledge(n: number): Knowledge {
+  return { tables: new Map(), sorted: [], byBit: [], infoBits: new Uint32Array(n), versions: new Uint32Array(n) };
+}
+function flushKnowledge(n: number): FlushKnowledge {
+  return { ...knowledge(n), toleratedFrom: new Float64Array(n).fill(Infinity), untoleratedTo: new Float64Array(n).fill(-Infinity) };
+}
+
 class WindowSearch {
   private readonly n: number;
   // the flush tables are kept by k + flushShift: shared with an earlier search whose exponents lie flushShift apart
@@ -224,19 +248,9 @@ class WindowSearch {
   // each tensor's place in overflowOrder (ties of the bounds are broken by it)
   private readonly overflowRank: Int32Array;
   private readonly allBounded: boolean;
-  private readonly tables: Record<Curve, Map<number, Table>>;
-  // per tensor the lowest flush key where its flushing was found tolerated (+∞: none), and the highest where it was
-  // not (−∞: none), shared with the flush tables: a share falling with k is tolerated above the one and not below the other
-  private readonly toleratedFrom: Float64Array;
-  private readonly untoleratedTo: Float64Array;
-  // the tables of each curve by exponent (for the flush curve: k + flushShift), ascending
-  private readonly sorted: Record<Curve, Table[]>;
-  // per curve the first 32 tables made, and per tensor a bit for each that knows something of it: `known` visits
-  // those alone (a tensor is known at a few exponents of the many the search visits); past 32 tables, all of them
-  private readonly byBit: Record<Curve, Table[]>;
-  private readonly infoBits: Record<Curve, Uint32Array>;
-  // per curve and tensor, how many times something was learnt of it at any exponent
-  private readonly versions: Record<Curve, Uint32Array>;
+  // what the search knows of each curve; the flush curve's is shared with an earlier search (FlushLike) as a whole
+  private readonly overflowKnown: Knowledge;
+  private readonly flushKnown: FlushKnowledge;
   // exponents where the union bound was found over the budget (for some set of tensors): cheap bounds taken there
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
@@ -262,13 +276,8 @@ class WindowSearch {
   ) {
     this.n = tensors.length;
     this.flushShift = flushFrom === undefined ? 0 : flushFrom.search.flushShift + flushFrom.shift;
-    this.tables = { overflow: new Map(), flush: flushFrom === undefined ? new Map() : flushFrom.search.tables.flush };
-    this.sorted = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.sorted.flush };
-    this.byBit = { overflow: [], flush: flushFrom === undefined ? [] : flushFrom.search.byBit.flush };
-    this.infoBits = { overflow: new Uint32Array(this.n), flush: flushFrom === undefined ? new Uint32Array(this.n) : flushFrom.search.infoBits.flush };
-    this.versions = { overflow: new Uint32Array(this.n), flush: flushFrom === undefined ? new Uint32Array(this.n) : flushFrom.search.versions.flush };
-    this.toleratedFrom = flushFrom === undefined ? new Float64Array(this.n).fill(Infinity) : flushFrom.search.toleratedFrom;
-    this.untoleratedTo = flushFrom === undefined ? new Float64Array(this.n).fill(-Infinity) : flushFrom.search.untoleratedTo;
+    this.overflowKnown = knowledge(this.n);
+    this.flushKnown = flushFrom === undefined ? flushKnowledge(this.n) : flushFrom.search.flushKnown;
     this.growth = new Float64Array(this.n);
     for (let i = 0; i < this.n; i++) {
       const g = (tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
@@ -353,15 +362,15 @@ class WindowSearch {
 
   private tableAt(curve: Curve, k: number): Table {
     // (the curve's records read by name: a key that varies makes every read a keyed look-up)
-    const tables = curve === "overflow" ? this.tables.overflow : this.tables.flush;
-    let table = tables.get(k);
+    const known = curve === "overflow" ? this.overflowKnown : this.flushKnown;
+    let table = known.tables.get(k);
     if (table === undefined) {
       const n = this.n;
-      const byBit = curve === "overflow" ? this.byBit.overflow : this.byBit.flush;
+      const byBit = known.byBit;
       table = { k, bit: byBit.length < 32 ? byBit.length : -1, data: new Float64Array(4 * n), flags: new Uint8Array(n) };
       if (table.bit >= 0) byBit.push(table);
-      tables.set(k, table);
-      const sorted = curve === "overflow" ? this.sorted.overflow : this.sorted.flush;
+      known.tables.set(k, table);
+      const sorted = known.sorted;
       let j = sorted.length;
       while (j > 0 && sorted[j - 1]!.k > k) j--;
       sorted.splice(j, 0, table);
@@ -382,10 +391,10 @@ class WindowSearch {
 
   // something was learnt of tensor i at the table's exponent
   private mark(curve: Curve, table: Table, i: number): void {
-    const versions = curve === "overflow" ? this.versions.overflow : this.versions.flush;
+    const versions = (curve === "overflow" ? this.overflowKnown : this.flushKnown).versions;
     versions[i] = (versions[i] as number) + 1;
     if (table.bit < 0) return;
-    const bits = curve === "overflow" ? this.infoBits.overflow : this.infoBits.flush;
+    const bits = (curve === "overflow" ? this.overflowKnown : this.flushKnown).infoBits;
     bits[i] = (bits[i] as number) | (1 << table.bit);
   }
 
@@ -426,7 +435,7 @@ class WindowSearch {
   // grows with k (what is known below k bounds it from below, above k from above), the flushed share falls.
   // (the found bounds read back where nothing was learnt since: small, so that the scans over every tensor inline it)
   private known(curve: Curve, at: number, i: number, here: Table): Float64Array {
-    const version = ((curve === "overflow" ? this.versions.overflow : this.versions.flush)[i] as number) + 1;
+    const version = ((curve === "overflow" ? this.overflowKnown : this.flushKnown).versions[i] as number) + 1;
     if (here.knownVersion !== undefined && here.knownVersion[i] === version) {
       this.pair[0] = here.knownLo![i] as number;
       this.pair[1] = here.knownHi![i] as number;
@@ -441,11 +450,12 @@ class WindowSearch {
     let hi = Infinity;
     const k = rising ? at : at + this.flushShift;
     const growth = rising ? 0 : (this.growth[i] as number);
-    const sorted = rising ? this.sorted.overflow : this.sorted.flush;
-    const byBit = rising ? this.byBit.overflow : this.byBit.flush;
+    const kn = rising ? this.overflowKnown : this.flushKnown;
+    const sorted = kn.sorted;
+    const byBit = kn.byBit;
     // every table has its bit: only those that know tensor i (lowest bit first); else every table
     const bitsOnly = sorted.length === byBit.length;
-    let bits = bitsOnly ? ((rising ? this.infoBits.overflow : this.infoBits.flush)[i] as number) : 0;
+    let bits = bitsOnly ? (kn.infoBits[i] as number) : 0;
     const count = bitsOnly ? 32 : sorted.length;
     for (let j = 0; j < count; j++) {
       let t: Table;
@@ -801,8 +811,8 @@ class WindowSearch {
     let ok: boolean | undefined;
     // tolerated below k: tolerated at k; not tolerated above k: not at k
     const key = table.k;
-    if ((this.untoleratedTo[i] as number) > key) ok = false;
-    else if ((this.toleratedFrom[i] as number) < key) ok = true;
+    if ((this.flushKnown.untoleratedTo[i] as number) > key) ok = false;
+    else if ((this.flushKnown.toleratedFrom[i] as number) < key) ok = true;
     if (ok === undefined) {
       const known = this.known("flush", k, i, table);
       if ((known[1] as number) <= tolerance) ok = true;
@@ -818,8 +828,8 @@ class WindowSearch {
       ok = upper !== undefined && upper <= tolerance ? true : this.value("flush", k, i, table) <= tolerance;
     }
     table.flags[i] = (table.flags[i] as number) | TOLERANCE_KNOWN | (ok ? TOLERATED : 0);
-    if (ok && key < (this.toleratedFrom[i] as number)) this.toleratedFrom[i] = key;
-    if (!ok && key > (this.untoleratedTo[i] as number)) this.untoleratedTo[i] = key;
+    if (ok && key < (this.flushKnown.toleratedFrom[i] as number)) this.flushKnown.toleratedFrom[i] = key;
+    if (!ok && key > (this.flushKnown.untoleratedTo[i] as number)) this.flushKnown.untoleratedTo[i] = key;
     return ok;
   }
 
