@@ -251,10 +251,11 @@ class Phase {
    * The end pass's profiles of the next start site (see {@link site}), which must be of the same kind and layer: a
    * rule that sited differently in the two passes would otherwise give a site another's end.
    */
-  siteEnd(kind: HazardKind, layer: string, input: MagnitudeProfile, output: MagnitudeProfile | undefined): void {
+  siteEnd(kind: HazardKind, layer: string, input: MagnitudeProfile, output: MagnitudeProfile | undefined, backward = false): void {
     const index = this.sited++;
     const site = this.hazards[index];
-    if (site === undefined || site.kind !== kind || site.layer !== layer) disagreeAtSite(index, site, kind, layer);
+    // a backward sum is told from its layer's forward sums of the same kind, which it would otherwise pass for
+    if (site === undefined || site.kind !== kind || site.layer !== layer || (site.gradient === true) !== backward) disagreeAtSite(index, site, kind, layer, backward);
     site.end = { input, output };
   }
 
@@ -381,7 +382,7 @@ class Phase {
   }
 
   /** Walk layers backward from the gradient at their output; `seeded`: the last layer's output gradient is already reported. */
-  backward(layers: readonly GraphLayer[], output: Gradient, node: LedgerNode | null, seeded: boolean): Gradient | undefined {
+  backward(layers: readonly GraphLayer[], output: Gradient, node: LedgerNode | null, seeded: boolean, bottom: boolean): Gradient | undefined {
     let gradient: Gradient | undefined = output;
     let current = node;
     for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
@@ -400,7 +401,7 @@ class Phase {
           current,
         );
       }
-      const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current);
+      const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current, bottom && i === 0);
       const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // nothing reads a layer's stash after its backward rule: let it go, so a collection during the pass copies less
       this.stash[layer.index] = undefined;
@@ -410,6 +411,10 @@ class Phase {
       for (let k = 0; k < inner.length; k++) this.innerGradient(layer, prefix, inner[k] as InnerGradient, current);
       const weightGradients = result.weightGradients;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
+      const hazards = result.hazards;
+      if (hazards !== undefined) {
+        for (let k = 0; k < hazards.length; k++) this.backwardHazard(layer, prefix, hazards[k] as OpHazard, weightGradients, bottom && i === 0);
+      }
       current = chain(current, layer.name, result.factors, this.ledger);
       gradient = input;
     }
@@ -417,12 +422,12 @@ class Phase {
   }
 
   /** A residual layer's branch, walked backward from its seed: the branch's input gradient for the rule. */
-  private branchBackward(layer: GraphLayer, gradient: Gradient, node: LedgerNode | null): BranchResults {
+  private branchBackward(layer: GraphLayer, gradient: Gradient, node: LedgerNode | null, bottom: boolean): BranchResults {
     const seed = residualBranchSeed(layer, gradient, this.build, this.stash[layer.index] as ResidualStash);
     // (present only with a value: a delete of an absent key is skipped, for speed)
     if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
     if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
-    const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.ledger), false);
+    const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.ledger), false, bottom);
     return { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
   }
 
@@ -492,6 +497,42 @@ class Phase {
     return chain(node, layer.name, factors, true);
   }
 
+  /**
+   * A sum of the backward pass (BackwardResult.hazards), sited as the forward sums are and paired by the end pass in the
+   * same order. `atInput`: the layer's input is the network's, where no gradient is computed, so its transposed
+   * products are not summed. A weight gradient's sum over batch × positions takes that gradient's per-micro-batch
+   * profile as its result.
+   */
+  private backwardHazard(layer: GraphLayer, prefix: string, h: OpHazard, weightGradients: readonly WeightGradientMoment[], atInput: boolean): void {
+    const makes = h.makes ?? "input";
+    if (atInput && makes === "input") return;
+    let output: MagnitudeProfile | undefined;
+    if (h.output !== undefined) output = profileOf(h.output, h.outputElements ?? h.inputElements);
+    else if (makes.startsWith("weight-gradient")) {
+      const name = makes === "weight-gradient" ? "weight" : makes.slice("weight-gradient:".length);
+      const weight = maybeWeight(layer, name);
+      for (let k = 0; k < weightGradients.length && weight !== undefined; k++) {
+        const wg = weightGradients[k] as WeightGradientMoment;
+        if (wg.weight === name) output = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+      }
+    }
+    const input = profileOf(h.input, h.inputElements);
+    if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, output, true);
+    this.site({
+      kind: h.kind,
+      layer: layer.name,
+      input,
+      terms: h.terms,
+      guarded: h.guarded,
+      constant: undefined,
+      detail: this.build ? textOf(h.detail) : "",
+      output,
+      end: undefined,
+      tensor: this.build && makes !== "input" ? prefix + makes : undefined,
+      gradient: true,
+    });
+  }
+
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
     const input = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
@@ -513,9 +554,9 @@ class Phase {
 }
 
 /** The error of an end pass whose site `index` is not the start pass's (kind undefined: it met no site there). */
-function disagreeAtSite(index: number, site: HazardSite | undefined, kind: HazardKind | undefined, layer: string | undefined): never {
-  const start = site === undefined ? "none" : `${site.kind} of ${site.layer}`;
-  const end = kind === undefined ? "none" : `${kind} of ${layer ?? ""}`;
+function disagreeAtSite(index: number, site: HazardSite | undefined, kind: HazardKind | undefined, layer: string | undefined, backward = false): never {
+  const start = site === undefined ? "none" : `${site.kind}${site.gradient === true ? " (backward)" : ""} of ${site.layer}`;
+  const end = kind === undefined ? "none" : `${kind}${backward ? " (backward)" : ""} of ${layer ?? ""}`;
   throw new RangeError(`internal: start and end passes disagree at hazard site ${index}: ${start} at the start, ${end} at the end`);
 }
 
@@ -685,7 +726,7 @@ function runPhase(
     );
     if (build) (p.tensors[p.tensors.length - 1] as PredictedTensor).partOf = `${last.name}/activation-gradient`;
   }
-  p.backward(graph.layers, seed.gradient, seedNode, true);
+  p.backward(graph.layers, seed.gradient, seedNode, true, true);
   p.finish();
   return { tensors: p.tensors, hazards: p.hazards };
 }

@@ -153,6 +153,11 @@ export interface HazardSite {
   tensor?: string;
   /** a loss-value site under mean reduction: the terms the mean sums before it divides (its rounding is the sum's) */
   averaged?: number;
+  /**
+   * an accumulation of the backward pass (a transposed map's products, a weight gradient's sum over batch × positions):
+   * its terms are gradients, judged at the loss scale as gradient tensors are
+   */
+  gradient?: boolean;
 }
 
 /** The magnitude engine's output for one spec and plan. */

@@ -319,3 +319,60 @@ export function limitTangent(m: Curvature, own: number, independent: number): vo
   m.tangentExcess = after;
   m.tangentAbove = above * independent;
 }
+
+/**
+ * The terms of a sum a backward rule accumulates: products of two independent factors, E[(a·b)²] = E[a²]·E[b²] (zero
+ * where either is, spread over draws by both), taken as Gaussian as the forward rules' products are (hazardInput).
+ */
+export function productTerms(q: number, zeroFraction: number, logVar: number): Gradient {
+  return { q, zeroFraction: Math.min(Math.max(zeroFraction, 0), 1), shape: "gaussian", logVar };
+}
+
+/**
+ * A weight gradient summed over the batch × positions `terms` of one micro-batch: products x·δ of the layer's input (or
+ * whatever the weight multiplies) and the gradient it meets, in the accumulate format (chain rule; common practice).
+ */
+export function weightSumHazard(details: boolean, weight: GraphWeight, makes: string, x: Signal | Gradient, delta: Gradient, terms: number): OpHazard {
+  return {
+    kind: "accumulation",
+    input: productTerms(x.q * delta.q, 1 - (1 - x.zeroFraction) * (1 - delta.zeroFraction), x.logVar + delta.logVar),
+    inputElements: weight.elements * terms,
+    terms,
+    guarded: false,
+    detail: details ? weightSumWords(makes, terms) : "",
+    makes,
+  };
+}
+
+/**
+ * A transposed map's products w·δ (weights of variance `variance`, independent of δ) summed over `terms` outputs per
+ * element of the gradient it makes (`made`, `elements` of them): δ_in = Wᵀ·δ_out sums fan-out terms (Schoenholz et al.
+ * 2017, backward recursion).
+ */
+export function transposedHazard(details: boolean, variance: number, delta: Gradient, terms: number, made: Gradient, elements: number, makes: string, what: string): OpHazard {
+  return backwardSumHazard(details, productTerms(variance * delta.q, delta.zeroFraction, delta.logVar), terms, made, elements, makes, what);
+}
+
+/** A backward sum of `terms` products of moments `products` per element of the gradient it makes (`made`, `elements`). */
+export function backwardSumHazard(details: boolean, products: Gradient, terms: number, made: Gradient, elements: number, makes: string, what: string): OpHazard {
+  return {
+    kind: "accumulation",
+    input: products,
+    inputElements: elements * terms,
+    output: made,
+    outputElements: elements,
+    terms,
+    guarded: false,
+    detail: details ? transposedWords(what, terms) : "",
+    makes,
+  };
+}
+
+// the wording makers hold only the numbers they print (see dense/analytic.ts)
+function weightSumWords(makes: string, terms: number): Text {
+  return () => `${makes}: ${terms} products of input and gradient (batch × positions of one micro-batch) summed`;
+}
+
+function transposedWords(what: string, terms: number): Text {
+  return () => `${what}: backward products summed over ${terms} terms per gradient element`;
+}

@@ -304,15 +304,23 @@ export interface InnerGradient {
 /** An operation hazard a rule reports (turned into a HazardSite by the engine). */
 export interface OpHazard {
   kind: "softmax-exp" | "norm-sum-of-squares" | "accumulation";
-  /** what goes into the operation */
-  input: Signal;
+  /** what goes into the operation (a backward rule's sums: the gradient's products, scaled by the loss scale as gradients are) */
+  input: Signal | Gradient;
   inputElements: number;
   /** what comes out, when it differs from the input (an accumulated sum) */
-  output?: Signal;
+  output?: Signal | Gradient;
   outputElements?: number;
   terms: number;
   guarded: boolean;
   detail: Text;
+  /**
+   * a backward rule's sums only: the gradient the sum makes, as the end of its tensor id: "input" (the gradient at the
+   * layer's input, which the engine leaves out below the network's input, where no gradient is computed),
+   * "weight-gradient" or "weight-gradient:<name>" (a weight's gradient summed over batch × positions in one
+   * micro-batch: the engine takes that gradient's profile as the sum's), or "activation-gradient:<suffix>" (an inner
+   * gradient)
+   */
+  makes?: string;
 }
 
 /** Forward result of one layer. */
@@ -361,6 +369,8 @@ export interface BackwardResult {
   factors: readonly Factor[];
   inner: InnerGradient[];
   weightGradients: WeightGradientMoment[];
+  /** the backward products and batch sums accumulated in the accumulate format (each with `makes`); absent: none */
+  hazards?: OpHazard[];
 }
 
 /** Extra inputs for composite layers: the residual add gets its branch's output (forward) or input gradient. */

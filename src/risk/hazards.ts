@@ -64,6 +64,9 @@ const EPSILON_FLUSHED = 9;
 const SECOND_MOMENT = 10;
 const GRADIENT_SUM_ERROR = 11;
 const LOSS_SUM_ERROR = 12;
+const GRADIENT_ACCUMULATION_ERROR = 13;
+const GRADIENT_ACCUMULATION_OVERFLOW = 14;
+const GRADIENT_ACCUMULATION_FLUSH = 15;
 
 /**
  * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
@@ -259,7 +262,7 @@ export function evaluateHazard(
         severity: verdict,
         format: worse.format,
         // a layer's weight and bias gradients are summed apart: their findings are told apart by the tensor
-        subject: site.kind === "gradient-sum" && site.tensor !== undefined && subject === site.layer ? site.tensor : subject,
+        subject: (site.kind === "gradient-sum" || site.gradient === true) && site.tensor !== undefined && subject === site.layer ? site.tensor : subject,
         source: "hazard",
         value: worse.value,
         threshold: worse.threshold,
@@ -276,7 +279,7 @@ export function evaluateHazard(
       else if (evaluation.layer === undefined) evaluation.layer = site.layer;
     }
   }
-  return {
+  const check: HazardCheck = {
     kind: site.kind,
     layer,
     detail: site.detail,
@@ -288,6 +291,8 @@ export function evaluateHazard(
     findings: findings.slice(0, findingCount),
     constant: site.constant,
   };
+  if (site.gradient === true) check.gradient = true;
+  return check;
 }
 
 // evaluateHazard's working arrays (it runs to completion before it is entered again)
@@ -319,7 +324,7 @@ function draftsFor(
     case "norm-sum-of-squares":
       return normSumOfSquares(site, input, context, list);
     case "accumulation":
-      return accumulation(site, input, context, list);
+      return site.gradient === true ? gradientAccumulation(site, input, output, context, list) : accumulation(site, input, context, list);
     case "loss-value":
       return lossValue(site, input, context, list);
     case "gradient-sum":
@@ -462,6 +467,19 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       if (!tail.holds(format, verdict, side, 0, 0, 0)) tail.keep(format, verdict, side, 0, 0, 0, ` more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`);
       return "If each worker divides the gradients of " + gradientOf(site) + middle.text + sharePercent(value) + tail.text;
     }
+    case GRADIENT_ACCUMULATION_ERROR:
+      return `${upper(backwardSum(site))} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about √n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`;
+    case GRADIENT_ACCUMULATION_OVERFLOW:
+      return (
+        `The partial sums of ${backwardSum(site)} reach the ${format} overflow threshold${context.lossScale === 1 ? "" : " after the loss scale"} with probability ` +
+        `${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
+      );
+    case GRADIENT_ACCUMULATION_FLUSH: {
+      const said =
+        `${upper(backwardSum(site))} adds terms of rms ${plainNumber(draft.extra)}${context.lossScale === 1 ? "" : " after the loss scale"} in ${format}: ` +
+        `${sharePercent(value)} of their squared norm lies below its flush bound ${plainNumber(context.accumulate.flushBound)} and is lost${side} (${verdictWord(verdict)})`;
+      return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`), or a larger loss scale.`;
+    }
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
     case EPSILON_FLUSHED:
@@ -543,6 +561,15 @@ function gradientOf(site: HazardSite): string {
   return site.tensor ?? site.layer;
 }
 
+// what a sum of the backward pass makes, in words: a named gradient, or the gradient at its layer's input
+function backwardSum(site: HazardSite): string {
+  return `the sum making ${site.tensor ?? `the gradient at ${site.layer}'s input`}`;
+}
+
+function upper(words: string): string {
+  return words.charAt(0).toUpperCase() + words.slice(1);
+}
+
 // A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), written into `slot`, one of the working
 // profiles below, laid out as magnitude/profile.ts's profileOf literal (every key, absent ones undefined, in its order),
 // so the functions that read it see one layout; the profile itself for a factor 1. The gradient sums' summed, scaled
@@ -592,6 +619,9 @@ const START_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 const END_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 const START_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
 const END_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
+// a backward sum's terms and result at the loss scale (gradientAccumulation: one side at a time)
+const TERMS_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
+const SUM_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 
 // exp(x) overflows where x ≥ ln(overflow level): ln 65520 = 11.0901 in binary16 (SCIENCE.md §4). With the row
 // maximum subtracted each term is at most 1 and only the denominator (one term per key) can overflow.
@@ -689,11 +719,19 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   const terms = Math.max(1, site.terms);
   const error = sumRoundingError(terms, limits.unitRoundoff);
   const t = context.thresholds;
-  const law = elementLaw(profile);
-  const outputs = Math.max(1, nonzeroElements(profile) / terms);
   const level = limits.overflowLevel;
-  const coherent = law.positiveShare === 1;
-  const overflow = !(profile.rms > 0) || (!coherent && sumFarBelow(profile, level, terms))
+  const coherent = elementLaw(profile).positiveShare === 1;
+  const overflow = partialSumsOverflow(profile, terms, level, coherent);
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", error, null,
+    t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),
+    t.overflowAtRisk, t.overflowFails, false, ACCUMULATION_OVERFLOW, 0, false);
+}
+
+// P(some partial sum of `terms` terms of `profile` reaches `level` in a step), `coherent` when the terms share one sign
+function partialSumsOverflow(profile: MagnitudeProfile, terms: number, level: number, coherent: boolean): number {
+  const outputs = Math.max(1, nonzeroElements(profile) / terms);
+  return !(profile.rms > 0) || (!coherent && sumFarBelow(profile, level, terms))
     ? 0
     : coherent
       ? // the sum passes the level exactly when the drawn scale passes level/terms: log2 r ~ N(log2 rms, spread²)
@@ -705,10 +743,38 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
           const perOutput = Math.min(1, 4 * normalSf(level / (Math.sqrt(terms) * r)));
           return anyOf(perOutput, outputs);
         });
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", error, null,
-    t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),
-    t.overflowAtRisk, t.overflowFails, false, ACCUMULATION_OVERFLOW, 0, false);
+}
+
+/**
+ * A sum of the backward pass (HazardSite.gradient): its terms are gradients, so they and its result are judged at the
+ * loss scale, as gradient tensors are. Besides accumulation's √n·u and partial sums, (1) the result itself where the
+ * engine predicts it (a weight gradient's batch sum holds the parts its terms share, coherently: its partial sums reach
+ * about as far as the sum), and (2) the terms that flush: a term below the accumulate format's flush bound rounds to
+ * zero when it is added to a sum that is itself that small (IEEE 754-2019 §4.3: the sum of an addition is rounded to
+ * the destination format), the random-sign terms keeping the partial sums near zero, so the share of the terms'
+ * squared norm below it is lost from the sum, judged as a gradient's flushed share is. Numbers the closed-form bounds
+ * of src/risk/settle.ts put below 1e-13 are taken as 0, as the tensors' are.
+ */
+function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
+  const limits = context.accumulate;
+  const terms = Math.max(1, site.terms);
+  const t = context.thresholds;
+  const lossScale = context.lossScale;
+  const level = limits.overflowLevel;
+  const scaled = scaledIn(TERMS_SCALED, input, lossScale);
+  let overflow = partialSumsOverflow(scaled, terms, level, false);
+  if (output !== undefined && overflow < 1) {
+    const sum = scaledIn(SUM_SCALED, output, lossScale);
+    if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
+  }
+  const flushBound = limits.flushBound;
+  const lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
+    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_ACCUMULATION_ERROR, 0, false);
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, level / Math.sqrt(terms) / lossScale,
+    t.overflowAtRisk, t.overflowFails, false, GRADIENT_ACCUMULATION_OVERFLOW, 0, false);
+  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", lost, flushBound / lossScale,
+    t.energyAtRisk, t.energyFails, false, GRADIENT_ACCUMULATION_FLUSH, scaled.rms, false);
 }
 
 // Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw (z = 9,

@@ -411,13 +411,13 @@ export interface ScaledSubjects {
 }
 
 /** Whether an operation site's numbers move with the loss scale: the scaled loss, and gradients summed across workers or steps. */
-export function isScaledSite(kind: HazardKind): boolean {
-  return kind === "loss-value" || kind === "gradient-sum";
+export function isScaledSite(kind: HazardKind, gradient?: boolean): boolean {
+  return kind === "loss-value" || kind === "gradient-sum" || gradient === true;
 }
 
 export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): ScaledSubjects {
   const sites: ScaledSubjects["sites"][number][] = [];
-  for (const site of prediction.hazards) if (isScaledSite(site.kind)) sites.push({ site, origin: "prediction" });
+  for (const site of prediction.hazards) if (isScaledSite(site.kind, site.gradient)) sites.push({ site, origin: "prediction" });
   const allWeightGradients = weightGradientsOf(prediction);
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
   for (const site of trainingSites(spec, prediction, allWeightGradients, weightGradients)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
@@ -725,6 +725,7 @@ function judgeSiteOnce(site: HazardSite, origin: HazardCheck["origin"], settings
     findings: inSettingsOrder(findings, settings) ? findings : bySettings(findings, settings),
   };
   if (site.constant !== undefined) check.constant = site.constant;
+  if (site.gradient === true) check.gradient = true;
   return check;
 }
 
@@ -812,6 +813,7 @@ function siteCheck(first: HazardCheck, named: HazardCheck, evaluations: HazardEv
     findings,
   };
   if (first.constant !== undefined) check.constant = first.constant;
+  if (first.gradient === true) check.gradient = true;
   return check;
 }
 

@@ -136,4 +136,6 @@ export interface HazardCheck {
   origin: "prediction" | "training setup";
   evaluations: HazardEvaluation[];
   findings: Finding[];
+  /** an accumulation of the backward pass, judged at the loss scale as gradients are (HazardSite.gradient) */
+  gradient?: boolean;
 }

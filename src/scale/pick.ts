@@ -51,7 +51,7 @@ export function scaledFindings(result: CheckResult, format: FormatName, subjects
     }
   }
   for (const h of result.hazards) {
-    if (!isScaledSite(h.kind)) continue;
+    if (!isScaledSite(h.kind, h.gradient)) continue;
     for (const f of h.findings) {
       if (f.format !== format || !movesWithScale(f)) continue;
       add(counted, f);

@@ -42,7 +42,28 @@ describe("hazard sites at the end of the horizon", () => {
           expect(p.hazards.length).toBeGreaterThan(0);
           for (const site of p.hazards) {
             expect(site.end).toBeDefined();
-            if (site.kind === "accumulation") {
+            if (site.kind === "accumulation" && site.gradient === true) {
+              // a backward sum makes a gradient the prediction reports: the dense layer's weight gradient (the one
+              // micro-batch's sum, what is reported when nothing is combined), or the gradient at its input, the output
+              // gradient of the activation below; its terms count what one element of that gradient sums
+              const index = Number(site.layer.slice(1));
+              if (site.tensor !== undefined) {
+                expect(site.tensor).toBe(`${site.layer}/weight-gradient`);
+                expect(site.terms).toBe(32);
+                const gradient = byId.get(site.tensor)!;
+                if (workers * steps === 1) {
+                  expect(site.output!.meanSquare).toBe(gradient.start.meanSquare);
+                  expect(site.end!.output!.meanSquare).toBe(gradient.end.meanSquare);
+                }
+              } else {
+                // none below the network's input, where no gradient is computed
+                expect(index).toBeGreaterThan(0);
+                expect(site.terms).toBe(widths[index]);
+                const gradient = byId.get(`a${index - 1}/activation-gradient`)!;
+                expect(site.output!.meanSquare).toBe(gradient.start.meanSquare);
+                expect(site.end!.output!.meanSquare).toBe(gradient.end.meanSquare);
+              }
+            } else if (site.kind === "accumulation") {
               // a dense layer's sums are its output: the same profile as its pre-activation tensor, at the end too
               const output = byId.get(`${site.layer}/pre-activation`)!;
               expect(site.output).toBe(output.start);
@@ -107,7 +128,8 @@ describe("hazard sites at the end of the horizon", () => {
         const result = forward(ctx, layer, input, branch);
         return ctx.phase === "end" && layer.name === "d1" ? { ...result, hazards: [] } : result;
       };
-      expect(() => predictOf(spec)).toThrow(/internal: start and end passes disagree at hazard site 1: accumulation of d1 at the start, none at the end/);
+      // (the next site met is d1's first backward sum, of the same kind and layer: told apart as a backward one)
+      expect(() => predictOf(spec)).toThrow(/internal: start and end passes disagree at hazard site 1: accumulation of d1 at the start, accumulation \(backward\) of d1 at the end/);
     } finally {
       rule.forward = forward;
     }

@@ -87,9 +87,12 @@ describe("operation sites judged once for the plan's formats", () => {
     }
   });
 
-  it("gives the JSON of every check its keys in one order, with `constant` only where a site has one", () => {
-    const keys = new Set(planned.hazards.map((h) => Object.keys(h).filter((k) => k !== "constant").join(",")));
+  it("gives the JSON of every check its keys in one order, with `constant` only where a site has one and `gradient` only on the backward sums", () => {
+    const keys = new Set(planned.hazards.map((h) => Object.keys(h).filter((k) => k !== "constant" && k !== "gradient").join(",")));
     expect(keys.size).toBe(1);
     for (const h of planned.hazards) expect("constant" in h).toBe(h.kind === "optimizer-constant");
+    const backward = planned.hazards.filter((h) => "gradient" in h);
+    expect(backward.length).toBeGreaterThan(0);
+    for (const h of backward) expect([h.kind, h.gradient]).toEqual(["accumulation", true]);
   });
 });

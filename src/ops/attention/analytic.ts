@@ -30,9 +30,13 @@ import {
   linearOutput,
   positionCorrelationOf,
   sampleCorrelationOf,
+  backwardSumHazard,
+  productTerms,
   sharedOf,
   sumLogVar,
+  transposedHazard,
   weightOf,
+  weightSumHazard,
 } from "../common.js";
 import { gaussianSoftmaxRow, gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
 import { densePullback } from "../dense/analytic.js";
@@ -624,6 +628,25 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const keyMap = ctx.variance(wk) * wk.fanIn;
     const keyRows: Gradient = { ...queryGradient, q: keyMap > 0 ? queryQ / keyMap : 0 };
     if (queryGradient.shared !== undefined && keyMap > 0) keyRows.shared = queryGradient.shared / keyMap;
+    // the sums this backward pass accumulates (Vaswani et al. 2017's products, differentiated): W_oᵀ·δ over the D
+    // outputs; δp = δo·vᵀ over the head width; δv_j = Σ_i p_ij·δo_i and δk_j = c·Σ_i δs_ij·q_i over the queries, and
+    // δq_i = c·Σ_j δs_ij·k_j over the keys, P terms for the longest row or column of a causal mask as of a full one
+    // (each product's mean square over the unmasked elements: E[p²] and E[δs²] there); the four weight gradients over
+    // batch × positions; δ_x = W_qᵀ·δq + W_kᵀ·δk + W_vᵀ·δv over 3·H·d terms
+    const details = ctx.details;
+    const unmaskedLogitQ = unmaskedShare > 0 ? logitQ / unmaskedShare : 0;
+    const hazards: OpHazard[] = [
+      transposedHazard(details, ctx.variance(wo), output, wo.fanOut, heads, projectionElements, "activation-gradient:heads", "attention output W_oᵀ·δ"),
+      backwardSumHazard(details, productTerms(headsQ * stash.value.q, 0, heads.logVar), d, g(probQ), matrixElements, "activation-gradient:probabilities", "attention δo·vᵀ"),
+      backwardSumHazard(details, productTerms(stash.scale2 * unmaskedLogitQ * stash.key.q, 0, heads.logVar), P, queryGradient, projectionElements, "activation-gradient:query", "attention δs·k over keys"),
+      backwardSumHazard(details, productTerms(stash.scale2 * unmaskedLogitQ * stash.query.q, 0, heads.logVar), P, keyGradient, projectionElements, "activation-gradient:key", "attention δsᵀ·q over queries"),
+      backwardSumHazard(details, productTerms(stash.rows.elementSecond * headsQ, 0, heads.logVar), P, valueGradient, projectionElements, "activation-gradient:value", "attention pᵀ·δo over queries"),
+      weightSumHazard(details, wq, "weight-gradient:query", stash.input, queryGradient, N),
+      weightSumHazard(details, wk, "weight-gradient:key", stash.input, keyGradient, N),
+      weightSumHazard(details, wv, "weight-gradient:value", stash.input, valueGradient, N),
+      weightSumHazard(details, wo, "weight-gradient:output", stash.heads, output, N),
+      backwardSumHazard(details, productTerms(inputQ / (3 * inner), 0, heads.logVar), 3 * inner, input, N * inWidth, "input", "attention W_qᵀ·δq + W_kᵀ·δk + W_vᵀ·δv"),
+    ];
     return {
       input,
       factors: ledger?.input ?? NO_FACTORS,
@@ -634,6 +657,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         wg("value", averagedInput, heads, stash.input.logVar + heads.logVar, valueAligned),
         wg("output", stash.heads, output, stash.heads.logVar + output.logVar, outputAligned),
       ],
+      hazards,
     };
   },
 };

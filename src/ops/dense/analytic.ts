@@ -3,9 +3,9 @@
  * backward E[δ_in²] = fan_out·var_w·E[δ_out²] (Schoenholz et al. 2017), weight gradient a sum of
  * batch × positions products of input and gradient.
  */
-import { positionCount } from "../../graph/shape.js";
+import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, factor, fmt, gradientBetween, gradientSum, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -203,11 +203,19 @@ export function linearBackward(
   input.positionCorrelation = positionCorrelationOf(output);
   // weights shared across positions pair two positions of two samples with such pairs of the output gradient
   if (output.crossCorrelation !== undefined) input.crossCorrelation = output.crossCorrelation;
+  // the sums this backward pass accumulates: the weight gradient over batch × positions, and δ_in = Wᵀ·δ_out over the
+  // weight's fan-out (out-channels × k² for a convolution at stride 1, the most any input pixel meets)
+  const w = weightOf(layer, "weight");
+  const hazards = [
+    weightSumHazard(ctx.details, w, "weight-gradient", x, output, terms),
+    transposedHazard(ctx.details, variance, output, w.fanOut, input, ctx.batch * sampleElements(layer.input), "input", layer.family === "dense" ? "dense Wᵀ·δ" : "conv2d Wᵀ·δ"),
+  ];
   return {
     input,
     factors: ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS,
     inner: NO_INNER_GRADIENTS,
     weightGradients,
+    hazards,
   };
 }
 

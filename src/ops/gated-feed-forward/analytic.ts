@@ -10,6 +10,7 @@ import type { GatedFeedForwardLayer } from "../../spec/types.js";
 import {
   NO_FACTORS,
   SOURCES,
+  backwardSumHazard,
   crossCorrelationOf,
   diagonalPullback,
   factor,
@@ -18,11 +19,14 @@ import {
   linearGradient,
   linearOutput,
   positionCorrelationOf,
+  productTerms,
   sampleCorrelationOf,
   sharedOf,
+  transposedHazard,
   weightOf,
+  weightSumHazard,
 } from "../common.js";
-import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
 import { densePullback } from "../dense/analytic.js";
@@ -223,6 +227,16 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     // W_gate and W_up are independent, so the terms that pair one path with the other average to zero)
     if (productGradient.shared !== undefined) input.shared = gateMap * (gateGradient.shared ?? 0) + upMap * (upGradient.shared ?? 0);
     input.crossCorrelation = inputQ > 0 ? (gatePart * (gateGradient.crossCorrelation ?? 0) + upPart * (upGradient.crossCorrelation ?? 0)) / inputQ : 0;
+    // the sums this backward pass accumulates: W_downᵀ·δ over D outputs, the three weight gradients over batch ×
+    // positions, and δ_x = W_gateᵀ·δ_gate + W_upᵀ·δ_up over 2·hidden terms (each path's products at its own mean square)
+    const details = ctx.details;
+    const hazards: OpHazard[] = [
+      transposedHazard(details, ctx.variance(wd), output, wd.fanOut, productGradient, hiddenElements, "activation-gradient:product", "gated down Wᵀ·δ"),
+      weightSumHazard(details, wg, "weight-gradient:gate", stash.input, gateGradient, N),
+      weightSumHazard(details, wu, "weight-gradient:up", stash.input, upGradient, N),
+      weightSumHazard(details, wd, "weight-gradient:down", stash.product, output, N),
+      backwardSumHazard(details, productTerms(inputQ / (2 * spec.hidden), stash.gateZeroFraction, productGradient.logVar), 2 * spec.hidden, input, N * D, "input", "gated gate and up Wᵀ·δ"),
+    ];
     return {
       input,
       factors: ledger?.input ?? NO_FACTORS,
@@ -232,6 +246,7 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
         wgm("up", stash.input, upGradient, aligned.up),
         wgm("down", stash.product, output, aligned.down),
       ],
+      hazards,
     };
   },
 };
