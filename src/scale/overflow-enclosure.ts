@@ -8,11 +8,15 @@
  * magnitudes at scale 1 reaches 2^v: g(v) = P(V ≥ v) with V = log2 max|Z_i| (Z_i independent standard normal). The
  * draws put log2 r = log2 rms + s·Z with Z independent of V, so the draw integral is
  *   I(x) = E_Z[g(x − s·Z)] = P(V + s·Z ≥ x) = E_V[h(V)],  h(v) = Q((x − v)/s),  x = log2(t/rms)
- * (Q the normal upper tail). Taylor's theorem about μ = E[V] with the Lagrange remainder gives
- *   I = Q(u) + u·φ(u)·σ²/(2s²) + R,  u = (x − μ)/s,  |R| ≤ Σ_j M_j·E[|V − μ|³; V in shell j]/(6s³)
- * where h'''(v) = (u_v² − 1)·φ(u_v)/s³ (u_v = (x − v)/s), the shells partition the line around μ, and M_j is the
- * largest |(u² − 1)φ(u)| between μ and the far edge of shell j (the Lagrange point lies between μ and V), at most
- * φ(0) anywhere. The moments of V are computed once per process on a grid of counts n_k = e^{k/256}; I grows
+ * (Q the normal upper tail). Taylor's theorem about μ = E[V] to the third order with the Lagrange remainder gives
+ *   I = Q(u) + u·φ(u)·σ²/(2s²) + (u² − 1)·φ(u)·κ₃/(6s³) + R,  u = (x − μ)/s,
+ *   |R| ≤ Σ_j M_j·E[(V − μ)⁴; V in shell j]/(24s⁴)
+ * with κ₃ = E[(V − μ)³], the derivatives h^(k)(v) = He_{k−1}(u_v)·φ(u_v)/s^k (u_v = (x − v)/s; He the Hermite
+ * polynomials, Abramowitz & Stegun 22.2.15 with 26.2.11), so h''''(v) = (u_v³ − 3u_v)·φ(u_v)/s⁴; the shells partition
+ * the line around μ, and M_j is the largest |(u³ − 3u)φ(u)| between μ and the far edge of shell j (the Lagrange point
+ * lies between μ and V), at most its peak at u² = 3 − √6 anywhere. V's spread is a fraction of a binade, so each order
+ * gains a factor of about σ_V/s: the fourth-order remainder leaves bounds a few times 1e-3 of the value wide where the
+ * spread is a few binades. The moments of V are computed once per process on a grid of counts n_k = e^{k/256}; I grows
  * with n (more elements, more chances), so the grid count below n gives the lower bound and the one above the upper.
  * The bounds are widened for what separates the computed integral from I: the fast erfc's relative error 1.2e-7, the
  * sum's 1e-6 (laws.ts), the moments' quadrature; 2e-5 of the upper bound covers them all (checked against the
@@ -31,22 +35,25 @@ const PER_LN = 256;
 const STEPS = 256;
 const BELOW = 8;
 const ABOVE = 3;
-// φ(0)
-const PHI0 = 0.3989422804014327;
+// |(u³ − 3u)φ(u)| peaks where its derivative −(u⁴ − 6u² + 3)φ(u) vanishes: u² = 3 ∓ √6 (the larger peak at 3 − √6)
+const INNER_PEAK_U = Math.sqrt(3 - Math.sqrt(6));
+const OUTER_PEAK_U = Math.sqrt(3 + Math.sqrt(6));
 // what separates the computed integral from I, relative to the upper bound (see above)
 const WIDEN = 2e-5;
 
 export interface LevelMoments {
   mean: number;
   variance: number;
+  /** E[(V − μ)³] */
+  third: number;
   /** the shells' edges, as offsets from the mean in binades (−∞ first, +∞ last) */
   edges: Float64Array;
-  /** per shell j (between edges j and j + 1): E[|V − μ|³; V in the shell] */
-  thirds: Float64Array;
+  /** per shell j (between edges j and j + 1): E[(V − μ)⁴; V in the shell] */
+  fourths: Float64Array;
 }
 
-// the shells' inner edges in standard deviations of V from its mean: the remainder takes the largest |h'''| over each
-// shell times the shell's share of E|V − μ|³. V's upper tail is about exponential in its standard units near the
+// the shells' inner edges in standard deviations of V from its mean: the remainder takes the largest |h''''| over each
+// shell times the shell's share of E(V − μ)⁴. V's upper tail is about exponential in its standard units near the
 // mean (Gumbel's, from memory) and then falls as n·erfc(2^v/√2); its lower tail is double-exponential
 const SHELL_EDGES = [-8, -4, -2, -1, 0, 1, 2, 3, 4, 5, 6, 8, 10, 13, 17, 22, 28, 36, 46];
 
@@ -81,70 +88,75 @@ export function levelMoments(k: number): LevelMoments {
   }
   const mean = first / mass;
   let variance = 0;
+  let third = 0;
   for (let j = 0; j <= count; j++) {
     const e = from + j * step - mean;
-    variance += (weights[j] as number) * (values[j] as number) * e * e;
+    const w = (weights[j] as number) * (values[j] as number);
+    variance += w * e * e;
+    third += w * e * e * e;
   }
   variance /= mass;
+  third /= mass;
   const sigma = Math.sqrt(variance);
   const edges = new Float64Array(SHELL_EDGES.length + 2);
   edges[0] = -Infinity;
   for (let j = 0; j < SHELL_EDGES.length; j++) edges[j + 1] = (SHELL_EDGES[j] as number) * sigma;
   edges[edges.length - 1] = Infinity;
-  const thirds = new Float64Array(edges.length - 1);
+  const fourths = new Float64Array(edges.length - 1);
   let shell = 0;
   for (let j = 0; j <= count; j++) {
     const e = from + j * step - mean;
     while (e > (edges[shell + 1] as number)) shell++;
-    thirds[shell] = (thirds[shell] as number) + ((weights[j] as number) * (values[j] as number) * Math.abs(e) ** 3) / mass;
+    fourths[shell] = (fourths[shell] as number) + ((weights[j] as number) * (values[j] as number) * e * e * e * e) / mass;
   }
   // the mass beyond the quadrature's range: below, P(V ≤ from) = (1 − erfc(2^from/√2))^n; above, at most
-  // n·erfc(2^top/√2). Each is charged a distance of the whole range plus 64 binades, cubed (V below `from` is far
-  // less likely still lower: the tail falls as (0.8·2^v)^n, n ≥ 16), in the outermost shells
+  // n·erfc(2^top/√2). Each is charged a distance of the whole range plus 64 binades, to the fourth (V below `from` is
+  // far less likely still lower: the tail falls as (0.8·2^v)^n, n ≥ 16), in the outermost shells
   const below = Math.exp(n * Math.log1p(-erfc(2 ** from / Math.SQRT2)));
   const above = Math.min(1, n * erfc(2 ** (from + count * step) / Math.SQRT2));
   const reach = BELOW + ABOVE + 64;
-  thirds[0] = (thirds[0] as number) + below * reach * reach * reach;
-  thirds[thirds.length - 1] = (thirds[thirds.length - 1] as number) + above * reach * reach * reach;
-  m = { mean, variance, edges, thirds };
+  fourths[0] = (fourths[0] as number) + below * reach ** 4;
+  fourths[fourths.length - 1] = (fourths[fourths.length - 1] as number) + above * reach ** 4;
+  m = { mean, variance, third, edges, fourths };
   MOMENTS.set(k, m);
   return m;
 }
 
-// |(u² − 1)·φ(u)|, 0 at ±∞
-function third(u: number): number {
-  return Number.isFinite(u) ? Math.abs((u * u - 1) * normalPdf(u)) : 0;
+// |(u³ − 3u)·φ(u)|, 0 at ±∞
+function fourth(u: number): number {
+  return Number.isFinite(u) ? Math.abs((u * u - 3) * u * normalPdf(u)) : 0;
 }
-const ROOT3 = Math.sqrt(3);
-const THIRD_PEAK = third(ROOT3);
+const INNER_PEAK = fourth(INNER_PEAK_U);
+const OUTER_PEAK = fourth(OUTER_PEAK_U);
 
-// The largest |(u² − 1)φ(u)| over [a, b] given its values at the ends: there, or at its peaks 0 and ±√3 when they lie
-// inside (it falls away from them)
+// The largest |(u³ − 3u)φ(u)| over [a, b] given its values at the ends: there, or at its peaks ±√(3 ∓ √6) when they lie
+// inside (it is monotone between them and its zeros 0, ±√3)
 function peakBetween(a: number, fa: number, b: number, fb: number): number {
-  if (a <= 0 && 0 <= b) return PHI0;
+  if ((a <= INNER_PEAK_U && INNER_PEAK_U <= b) || (a <= -INNER_PEAK_U && -INNER_PEAK_U <= b)) return INNER_PEAK;
   let peak = Math.max(fa, fb);
-  if ((a <= ROOT3 && ROOT3 <= b) || (a <= -ROOT3 && -ROOT3 <= b)) peak = Math.max(peak, THIRD_PEAK);
+  if ((a <= OUTER_PEAK_U && OUTER_PEAK_U <= b) || (a <= -OUTER_PEAK_U && -OUTER_PEAK_U <= b)) peak = Math.max(peak, OUTER_PEAK);
   return peak;
 }
 
-// The remainder bound (times 6s³) of the Taylor values of I at x for two grid counts' moments at once. For V in a
-// shell the Lagrange point lies between μ and V: the bound takes the largest |(u² − 1)φ(u)| from the means out to the
+// The remainder bound (times 24s⁴) of the Taylor values of I at x for two grid counts' moments at once. For V in a
+// shell the Lagrange point lies between μ and V: the bound takes the largest |(u³ − 3u)φ(u)| from the means out to the
 // shell's far edges, of both laws (the interval only grows outward, one new end per shell), times the larger of the
-// two laws' shares of E|V − μ|³ there: it bounds both remainders. From the first shell (outward) whose share could
-// move the bound by less than a thousandth of `value`, the largest anywhere, φ(0), is taken without evaluating more.
+// two laws' shares of E(V − μ)⁴ there: it bounds both remainders. A shell whose share could move the bound by less
+// than a thousandth of `value` takes the largest anywhere without an evaluation (the interval of the next shell
+// evaluated covers it: it runs from the last end evaluated).
 function remainder(x: number, s: number, a: LevelMoments, b: LevelMoments, value: number): number {
   const ua = (x - a.mean) / s;
   const ub = (x - b.mean) / s;
   const low = Math.min(ua, ub);
   const high = Math.max(ua, ub);
-  const fLow = third(low);
-  const fHigh = third(high);
+  const fLow = fourth(low);
+  const fHigh = fourth(high);
   const inner = peakBetween(low, fLow, high, fHigh);
-  const negligible = (1e-3 * Math.abs(value) * 6 * s * s * s) / PHI0;
+  const negligible = (1e-3 * Math.abs(value) * 24 * s * s * s * s) / INNER_PEAK;
   const edgesA = a.edges;
   const edgesB = b.edges;
-  const thirdsA = a.thirds;
-  const thirdsB = b.thirds;
+  const fourthsA = a.fourths;
+  const fourthsB = b.fourths;
   // the shell whose lower edge is the mean (the edges hold an offset of exactly 0)
   let centre = 0;
   while ((edgesA[centre] as number) < 0) centre++;
@@ -154,12 +166,10 @@ function remainder(x: number, s: number, a: LevelMoments, b: LevelMoments, value
     let end = direction > 0 ? low : high;
     let fEnd = direction > 0 ? fLow : fHigh;
     let running = inner;
-    let exhausted = false;
-    for (let j = direction > 0 ? centre : centre - 1; j >= 0 && j < thirdsA.length; j += direction) {
-      const c = Math.max(thirdsA[j] as number, thirdsB[j] as number);
-      if (exhausted || c <= negligible) {
-        exhausted = true;
-        sum += PHI0 * c;
+    for (let j = direction > 0 ? centre : centre - 1; j >= 0 && j < fourthsA.length; j += direction) {
+      const c = Math.max(fourthsA[j] as number, fourthsB[j] as number);
+      if (c <= negligible) {
+        sum += INNER_PEAK * c;
         continue;
       }
       const edge = direction > 0 ? j + 1 : j;
@@ -167,7 +177,7 @@ function remainder(x: number, s: number, a: LevelMoments, b: LevelMoments, value
       const farB = (x - b.mean - (edgesB[edge] as number)) / s;
       const far = direction > 0 ? Math.min(farA, farB) : Math.max(farA, farB);
       if (direction > 0 ? far < end : far > end) {
-        const fFar = third(far);
+        const fFar = fourth(far);
         running = Math.max(running, direction > 0 ? peakBetween(far, fFar, end, fEnd) : peakBetween(end, fEnd, far, fFar));
         end = far;
         fEnd = fFar;
@@ -181,7 +191,8 @@ function remainder(x: number, s: number, a: LevelMoments, b: LevelMoments, value
 // The Taylor value of I at x for one grid count's moments (without the remainder)
 function taylorValue(x: number, s: number, m: LevelMoments): number {
   const u = (x - m.mean) / s;
-  return normalSf(u) + (u * normalPdf(u) * m.variance) / (2 * s * s);
+  const density = normalPdf(u);
+  return normalSf(u) + (u * density * m.variance) / (2 * s * s) + ((u * u - 1) * density * m.third) / (6 * s * s * s);
 }
 
 /** Whether {@link anyAboveEnclosure} bounds this profile's any-above probability at t (a Gaussian law, enough elements). */
@@ -240,7 +251,7 @@ export function enclosureWith(a: LevelMoments, b: LevelMoments, s: number, x: nu
   if (!Number.isFinite(x)) return false;
   const valueA = taylorValue(x, s, a);
   const valueB = taylorValue(x, s, b);
-  const bound = remainder(x, s, a, b, valueB) / (6 * s * s * s);
+  const bound = remainder(x, s, a, b, valueB) / (24 * s * s * s * s);
   const low = valueA - bound;
   const high = valueB + bound;
   const widen = WIDEN * Math.max(0, high);
