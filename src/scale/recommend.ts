@@ -91,20 +91,20 @@ function profileBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress
     elements: start.elements,
     zeroFraction: start.zeroFraction,
     shape: start.shape,
-    rms: rmsBetween(start, end, progress),
-    log2Spread: spreadBetween(start, end, progress),
+    rms: rmsBetween(start.rms, end.rms, progress),
+    log2Spread: spreadBetween(start.log2Spread, end.log2Spread, progress),
     bound: start.bound,
     elementLog2Spread: start.elementLog2Spread,
   };
 }
 
-// profileBetween's rms (geometric between two positive ends, else the start's) and spread (linear), for callers that
-// keep a profile's numbers without making it
-function rmsBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress: number): number {
-  return start.rms > 0 && end.rms > 0 ? start.rms ** (1 - progress) * end.rms ** progress : start.rms;
+// profileBetween's rms (geometric between two positive ends, else the start's) and spread (linear) from the ends'
+// numbers, for callers that keep them without making the profile
+function rmsBetween(start: number, end: number, progress: number): number {
+  return start > 0 && end > 0 ? start ** (1 - progress) * end ** progress : start;
 }
-function spreadBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress: number): number {
-  return start.log2Spread + (end.log2Spread - start.log2Spread) * progress;
+function spreadBetween(start: number, end: number, progress: number): number {
+  return start + (end - start) * progress;
 }
 
 function gradientLimits(plan: PrecisionPlan, format: FormatName): RangeLimits {
@@ -521,27 +521,53 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
 }
 
 /**
- * What the shifted-tail bounds (src/scale/overflow-enclosure.ts shiftBounds) take of each gradient's start and end
- * profiles, made on first use for every point of the horizon: at 2i (start) and 2i + 1 (end), the rms's logarithm,
- * the spread, whether the bounds apply to the law and count (as anyAboveEnclosure's, src/scale/overflow-enclosure.ts
- * enclosureApplies: a Gaussian law, 16 elements or more), the levels of the count (three each) and log2 of the bound
- * (a billionth of a binade low; +∞ without one); per tensor whether both rms are positive (the rms then moves
- * geometrically, profileBetween) and whether its start's law is Gaussian with 16 elements or more. Read off the
- * profiles once per model, in typed arrays every point reads.
+ * What the shifted-tail and moment bounds (src/scale/overflow-enclosure.ts shiftBounds, enclosureWith) take of each
+ * gradient's start and end profiles, made on first use for every point of the horizon: at 2i (start) and 2i + 1 (end),
+ * the rms and its logarithm, the spread, the count of nonzero elements, whether the bounds apply to the law and count (as anyAboveEnclosure's,
+ * src/scale/overflow-enclosure.ts enclosureApplies: a Gaussian law, 16 elements or more), the levels of the count
+ * (three each), the bound and its log2 (a billionth of a binade low; +∞ without one), and the moments of the count's
+ * grid neighbours (made on first use); per tensor whether both rms are positive (the rms then moves geometrically,
+ * profileBetween) and whether its start's law is Gaussian with 16 elements or more. Read off the profiles once per
+ * model, in typed arrays every point reads (a profile's fields are slow to reach, its objects being of many kinds).
  */
 class ShiftEnds {
-  private made_: { rmsLog2: Float64Array; spread: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array; bothRms: Uint8Array; gaussian: Uint8Array } | undefined;
-  constructor(private readonly gradients: readonly GradientProfiles[]) {}
+  private made_:
+    | { rms: Float64Array; rmsLog2: Float64Array; spread: Float64Array; count: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array; rawBound: Float64Array; bothRms: Uint8Array; gaussian: Uint8Array }
+    | undefined;
+  // per end (2i start, 2i + 1 end): the moments of the grid counts about its count (enclosureMoments), made on first use
+  private readonly below: (LevelMoments | undefined)[];
+  private readonly above: (LevelMoments | undefined)[];
+  constructor(private readonly gradients: readonly GradientProfiles[]) {
+    this.below = new Array<LevelMoments | undefined>(2 * gradients.length);
+    this.above = new Array<LevelMoments | undefined>(2 * gradients.length);
+  }
+
+  /** The moments of the grid counts below and above end j's count (enclosureMoments), for a law with moment bounds. */
+  momentsBelow(j: number): LevelMoments {
+    return this.below[j] ?? this.momentsOf(j)[0];
+  }
+  momentsAbove(j: number): LevelMoments {
+    return this.above[j] ?? this.momentsOf(j)[1];
+  }
+  private momentsOf(j: number): [LevelMoments, LevelMoments] {
+    const moments = enclosureMoments(this.made().count[j]!);
+    this.below[j] = moments[0];
+    this.above[j] = moments[1];
+    return moments;
+  }
 
   made(): NonNullable<ShiftEnds["made_"]> {
     if (this.made_ !== undefined) return this.made_;
     const n = this.gradients.length;
     const m = {
+      rms: new Float64Array(2 * n),
       rmsLog2: new Float64Array(2 * n),
       spread: new Float64Array(2 * n),
+      count: new Float64Array(2 * n),
       ok: new Uint8Array(2 * n),
       levels: new Float64Array(6 * n),
       bound: new Float64Array(2 * n),
+      rawBound: new Float64Array(2 * n),
       bothRms: new Uint8Array(n),
       gaussian: new Uint8Array(n),
     };
@@ -551,15 +577,18 @@ class ShiftEnds {
       for (let side = 0; side < 2; side++) {
         const j = 2 * i + side;
         const law = side === 0 ? g.start : g.end;
+        m.rms[j] = law.rms;
         m.rmsLog2[j] = Math.log2(law.rms);
         m.spread[j] = law.log2Spread;
         const count = law.elements * (1 - law.zeroFraction);
+        m.count[j] = count;
         const enclosed = enclosedLaw(law.shape, count);
         if (side === 0) m.gaussian[i] = enclosed ? 1 : 0;
         if (!enclosed) continue;
         m.ok[j] = 1;
         shiftLevels(count, m.levels, 3 * j);
-        m.bound[j] = law.bound !== undefined && law.bound > 0 ? Math.log2(law.bound) - 1e-9 : Infinity;
+        m.rawBound[j] = law.bound !== undefined && law.bound > 0 ? law.bound : Infinity;
+        m.bound[j] = Math.log2(m.rawBound[j]!) - 1e-9;
       }
     }
     this.made_ = m;
@@ -649,8 +678,7 @@ class HorizonPoint {
         rmsLog2 = ends.rmsLog2[j]!;
         spread = ends.spread[j]!;
       } else {
-        const from = ends.spread[2 * i]!;
-        spread = from + (ends.spread[2 * i + 1]! - from) * p;
+        spread = spreadBetween(ends.spread[2 * i]!, ends.spread[2 * i + 1]!, p);
         const a = ends.rmsLog2[2 * i]!;
         const b = ends.rmsLog2[2 * i + 1]!;
         if (ends.bothRms[i] === 1) {
@@ -672,48 +700,40 @@ class HorizonPoint {
   }
 
   // per tensor here: what the moment bounds take of its profile (src/scale/overflow-enclosure.ts enclosureWith), each
-  // made on its first use without making the profile (a few hundred of the tensors are ever enclosed at a point): the
-  // moments of the grid counts about its count of nonzero elements, the spread, log2 of the rms (computed as
-  // profileBetween computes the rms, so the same x as anyAboveEnclosure's), the bound (+∞ without one), and whether the
-  // bounds apply (enclosureApplies: a Gaussian law, 16 elements or more, a spread, a positive rms): 0 not made yet, 1
-  // they apply, 2 they do not
-  private moments_: { below: LevelMoments[]; above: LevelMoments[]; spread: Float64Array; rmsLog2: Float64Array; bound: Float64Array; applies: Uint8Array } | undefined;
+  // made on its first use from the ends' numbers without making the profile (a few hundred of the tensors are ever
+  // enclosed at a point): the spread, log2 of the rms (computed as profileBetween computes the rms, so the same x as
+  // anyAboveEnclosure's), and which end's count, law and bound the profile has (profileAt: the end's at the end, else
+  // the start's), as 1 + that end's index where the bounds apply (enclosureApplies without t: a Gaussian law, 16
+  // elements or more, a spread, a positive rms), −1 where they do not, 0 not made yet
+  private moments_: { spread: Float64Array; rmsLog2: Float64Array; end: Int32Array } | undefined;
 
   private momentNumbers(): NonNullable<HorizonPoint["moments_"]> {
     const n = this.n;
-    const m = { below: new Array<LevelMoments>(n), above: new Array<LevelMoments>(n), spread: new Float64Array(n), rmsLog2: new Float64Array(n), bound: new Float64Array(n), applies: new Uint8Array(n) };
+    const m = { spread: new Float64Array(n), rmsLog2: new Float64Array(n), end: new Int32Array(n) };
     this.moments_ = m;
     return m;
   }
 
   private momentsOf(i: number, m: NonNullable<HorizonPoint["moments_"]>): void {
-    const g = this.gradients[i]!;
+    const e = this.ends.made();
     const p = this.progress;
-    // the profile here (profileAt): the start's or end's own at the ends, else profileBetween's fields
-    const from = p <= 0 ? g.start : p >= 1 ? g.end : undefined;
-    const base = from ?? g.start;
-    const count = base.elements * (1 - base.zeroFraction);
+    const j = p >= 1 ? 2 * i + 1 : 2 * i;
     let rms: number;
     let spread: number;
-    if (from !== undefined) {
-      rms = from.rms;
-      spread = from.log2Spread;
+    if (p <= 0 || p >= 1) {
+      rms = e.rms[j]!;
+      spread = e.spread[j]!;
     } else {
-      rms = rmsBetween(g.start, g.end, p);
-      spread = spreadBetween(g.start, g.end, p);
+      rms = rmsBetween(e.rms[2 * i]!, e.rms[2 * i + 1]!, p);
+      spread = spreadBetween(e.spread[2 * i]!, e.spread[2 * i + 1]!, p);
     }
-    // enclosureApplies without t (enclose checks t and the bound)
-    if (!(rms > 0 && spread > 0 && enclosedLaw(base.shape, count))) {
-      m.applies[i] = 2;
+    if (!(rms > 0 && spread > 0 && e.ok[j] === 1)) {
+      m.end[i] = -1;
       return;
     }
-    m.applies[i] = 1;
+    m.end[i] = j + 1;
     m.spread[i] = spread;
     m.rmsLog2[i] = Math.log2(rms);
-    m.bound[i] = base.bound !== undefined && base.bound > 0 ? base.bound : Infinity;
-    const moments = enclosureMoments(count);
-    m.below[i] = moments[0];
-    m.above[i] = moments[1];
   }
 
   /**
@@ -722,9 +742,10 @@ class HorizonPoint {
    */
   enclose(i: number, t: number, tLog2: number, into: Float64Array): boolean {
     const m = this.moments_ ?? this.momentNumbers();
-    if (m.applies[i] === 0) this.momentsOf(i, m);
-    if (m.applies[i] === 2 || !(t > 0) || t > m.bound[i]!) return false;
-    return enclosureWith(m.below[i]!, m.above[i]!, m.spread[i]!, tLog2 - m.rmsLog2[i]!, into, 0);
+    if (m.end[i] === 0) this.momentsOf(i, m);
+    const j = m.end[i]! - 1;
+    if (j < 0 || !(t > 0) || t > this.ends.made().rawBound[j]!) return false;
+    return enclosureWith(this.ends.momentsBelow(j), this.ends.momentsAbove(j), m.spread[i]!, tLog2 - m.rmsLog2[i]!, into, 0);
   }
 
   profile(i: number): MagnitudeProfile {
@@ -776,10 +797,11 @@ class OverflowNarrowing implements OverflowBounds {
   // log2 of the level
   private readonly levelLog2: number;
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
-  // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product
-  private readonly size: number;
-  private readonly lowFactors: Float64Array;
-  private readonly highFactors: Float64Array;
+  // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product. Made when the heap is
+  // first filled; before, each narrowing sets many bounds at once and takes the products in one pass
+  private size = 0;
+  private lowFactors: Float64Array | undefined;
+  private highFactors: Float64Array | undefined;
 
   constructor(
     private readonly point: HorizonPoint,
@@ -792,34 +814,33 @@ class OverflowNarrowing implements OverflowBounds {
     const n = point.n;
     this.state = new Uint8Array(n);
     this.levelLog2 = Math.log2(level);
+    // both bounds in one buffer
+    const buffer = new ArrayBuffer(16 * n);
+    this.lows = new Float64Array(buffer, 0, n);
+    this.highs = new Float64Array(buffer, 8 * n, n);
+  }
+
+  // the trees from the bounds (in one buffer), when the heap is first filled
+  private buildProducts(): void {
+    const n = this.point.n;
     let size = 1;
     while (size < n) size *= 2;
     this.size = size;
-    // the bounds and both trees in one buffer (one allocation per scale and point)
-    const buffer = new ArrayBuffer(8 * (2 * n + 4 * size));
-    this.lows = new Float64Array(buffer, 0, n);
-    this.highs = new Float64Array(buffer, 8 * n, n);
-    this.lowFactors = new Float64Array(buffer, 16 * n, 2 * size).fill(1);
-    this.highFactors = new Float64Array(buffer, 16 * n + 16 * size, 2 * size).fill(1);
-  }
-
-  // the trees from the bounds, once they are first set
-  // (`lowsToo` false: the lower bounds are all 0 still, and their tree all 1 as made)
-  private buildProducts(lowsToo: boolean): void {
-    const n = this.point.n;
-    const size = this.size;
-    const lowFactors = this.lowFactors;
-    const highFactors = this.highFactors;
+    const buffer = new ArrayBuffer(32 * size);
+    const lowFactors = new Float64Array(buffer, 0, 2 * size).fill(1);
+    const highFactors = new Float64Array(buffer, 16 * size, 2 * size).fill(1);
     const lows = this.lows;
     const highs = this.highs;
     for (let i = 0; i < n; i++) highFactors[size + i] = 1 - highs[i]!;
     for (let j = size - 1; j >= 1; j--) highFactors[j] = highFactors[2 * j]! * highFactors[2 * j + 1]!;
-    if (!lowsToo) return;
     for (let i = 0; i < n; i++) lowFactors[size + i] = 1 - lows[i]!;
     for (let j = size - 1; j >= 1; j--) lowFactors[j] = lowFactors[2 * j]! * lowFactors[2 * j + 1]!;
+    this.lowFactors = lowFactors;
+    this.highFactors = highFactors;
   }
 
-  private setFactor(tree: Float64Array, i: number, factor: number): void {
+  private setFactor(tree: Float64Array | undefined, i: number, factor: number): void {
+    if (tree === undefined) return;
     let j = this.size + i;
     tree[j] = factor;
     for (j >>= 1; j >= 1; j >>= 1) tree[j] = tree[2 * j]! * tree[2 * j + 1]!;
@@ -889,7 +910,6 @@ class OverflowNarrowing implements OverflowBounds {
           if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
         }
       }
-      this.buildProducts(false);
       if (first >= 0) this.integrate(first);
       // the others wait for the next narrowing, if the one integrated first does not decide with these bounds
       this.sweepPending = true;
@@ -898,7 +918,6 @@ class OverflowNarrowing implements OverflowBounds {
       // tails): enough for most; the rest are then ordered by what they leave open
       this.sweepPending = false;
       this.point.sweep(this.levelLog2, this.lows, highs, this.state);
-      this.buildProducts(true);
       for (let i = 0; i < n; i++) {
         if (this.state[i] !== 2 && highs[i]! > 2 ** -54) {
           this.heapPending = true;
@@ -908,6 +927,7 @@ class OverflowNarrowing implements OverflowBounds {
     } else {
       if (this.heapPending) {
         this.heapPending = false;
+        this.buildProducts();
         this.open = new Float64Array(n);
         this.heap = new IndexHeap(this.open);
         for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
@@ -950,11 +970,26 @@ class OverflowNarrowing implements OverflowBounds {
   }
 
   // Bounds on the computed 1 − Π(1 − p_i): the factors at the bounds of each p_i (a factor is 1 unless p_i is above
-  // 2^−54), the products (the trees' roots, n − 1 products in a tree's order) widened for the rounding of up to
-  // n + 2 products in any order (each within a relative 2^−53; Higham 2002, §3.1) and for underflow.
+  // 2^−54), the products (the trees' roots, or one pass in the tensors' order before the trees: n − 1 products either
+  // way) widened for the rounding of up to n + 2 products in any order (each within a relative 2^−53; Higham 2002,
+  // §3.1) and for underflow.
   private update(): void {
-    const noneHigh = this.lowFactors[1]!;
-    const noneLow = this.highFactors[1]!;
+    let noneHigh: number;
+    let noneLow: number;
+    if (this.lowFactors !== undefined) {
+      noneHigh = this.lowFactors[1]!;
+      noneLow = this.highFactors![1]!;
+    } else {
+      // no trees yet: the products in the tensors' order
+      const lows = this.lows;
+      const highs = this.highs;
+      noneHigh = 1;
+      noneLow = 1;
+      for (let i = 0; i < lows.length; i++) {
+        noneHigh *= 1 - lows[i]!;
+        noneLow *= 1 - highs[i]!;
+      }
+    }
     const widen = 4 * (this.point.n + 2) * 2 ** -53;
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
