@@ -50,6 +50,8 @@ export interface LevelMoments {
   edges: Float64Array;
   /** per shell j (between edges j and j + 1): E[(V − μ)⁴; V in the shell] */
   fourths: Float64Array;
+  /** E[(V − μ)⁴], the shells' sum */
+  fourth: number;
 }
 
 // the shells' inner edges in standard deviations of V from its mean: the remainder takes the largest |h''''| over each
@@ -117,7 +119,9 @@ export function levelMoments(k: number): LevelMoments {
   const reach = BELOW + ABOVE + 64;
   fourths[0] = (fourths[0] as number) + below * reach ** 4;
   fourths[fourths.length - 1] = (fourths[fourths.length - 1] as number) + above * reach ** 4;
-  m = { mean, variance, third, edges, fourths };
+  let fourth = 0;
+  for (let j = 0; j < fourths.length; j++) fourth += fourths[j] as number;
+  m = { mean, variance, third, edges, fourths, fourth };
   MOMENTS.set(k, m);
   return m;
 }
@@ -249,14 +253,30 @@ export function enclosureMoments(n: number): [LevelMoments, LevelMoments] {
  */
 export function enclosureWith(a: LevelMoments, b: LevelMoments, s: number, x: number, into: Float64Array, at: number): boolean {
   if (!Number.isFinite(x)) return false;
-  const valueA = taylorValue(x, s, a);
   const valueB = taylorValue(x, s, b);
-  const bound = remainder(x, s, a, b, valueB) / (24 * s * s * s * s);
+  enclosed(taylorValue(x, s, a), valueB, remainder(x, s, a, b, valueB) / (24 * s * s * s * s), into, at);
+  return true;
+}
+
+// [valueA − bound, valueB + bound] widened for what separates the computed integral from I, into `into` at `at`
+function enclosed(valueA: number, valueB: number, bound: number, into: Float64Array, at: number): void {
   const low = valueA - bound;
   const high = valueB + bound;
   const widen = WIDEN * Math.max(0, high);
   into[at] = Math.max(0, low - widen);
   into[at + 1] = Math.min(1, high + widen);
+}
+
+/**
+ * {@link enclosureWith} with the remainder taken at the peak of |(u³ − 3u)φ(u)| over the whole line, (E(V − μ)⁴ at most)
+ * · 0.55/(24s⁴), instead of shell by shell: four evaluations of the normal tail and density in place of a dozen or more,
+ * as tight where the value is well above that remainder (about 1e-7 both ways at 46,000 elements and a spread of 3
+ * binades), looser in the far tail.
+ * For the simulation's first narrowing of a tensor; the same contract as enclosureWith.
+ */
+export function enclosureQuick(a: LevelMoments, b: LevelMoments, s: number, x: number, into: Float64Array, at: number): boolean {
+  if (!Number.isFinite(x)) return false;
+  enclosed(taylorValue(x, s, a), taylorValue(x, s, b), (INNER_PEAK * Math.max(a.fourth, b.fourth)) / (24 * s * s * s * s), into, at);
   return true;
 }
 
