@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureMoments, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -636,15 +636,15 @@ class HorizonPoint {
   private shifts: { ok: Uint8Array; rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array } | undefined;
 
   /**
-   * Every tensor's shifted-tail bounds at log2 t into `lows` and `highs` where its law has them and they are tighter
+   * The shifted-tail bounds at log2 t of the tensors in `live` (the first `count`) into `lows` and `highs` where the law has them and they are tighter
    * (src/scale/overflow-enclosure.ts shiftBounds: two normal tails each), an integrated tensor (`state` 2) aside. Read off the start and
    * end profiles, without making the profiles here: inside the horizon the rms's logarithm is the interpolation of
    * theirs (within far less than the billionth of a binade each level is moved outward by).
    */
-  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array): void {
+  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number): void {
     const c = this.shifts ?? this.shiftConstants();
-    const n = this.n;
-    for (let i = 0; i < n; i++) {
+    for (let k = 0; k < count; k++) {
+      const i = live[k]!;
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is
       if (c.ok[i] === 0 || state[i] === 2 || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!) continue;
       shiftBoundsTabled(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
@@ -737,15 +737,18 @@ class HorizonPoint {
   }
 
   /**
-   * Tensor i's moment bounds at t (log2 t given) into `into` (anyAboveEnclosure's, bit for bit), or false where they do
-   * not apply.
+   * Tensor i's moment bounds at t (log2 t given) into `into` (anyAboveEnclosure's, bit for bit; `quick`, those with the
+   * remainder at its peak, enclosureQuick), or false where they do not apply.
    */
-  enclose(i: number, t: number, tLog2: number, into: Float64Array): boolean {
+  enclose(i: number, t: number, tLog2: number, into: Float64Array, quick: boolean): boolean {
     const m = this.moments_ ?? this.momentNumbers();
     if (m.end[i] === 0) this.momentsOf(i, m);
     const j = m.end[i]! - 1;
     if (j < 0 || !(t > 0) || t > this.ends.made().rawBound[j]!) return false;
-    return enclosureWith(this.ends.momentsBelow(j), this.ends.momentsAbove(j), m.spread[i]!, tLog2 - m.rmsLog2[i]!, into, 0);
+    const below = this.ends.momentsBelow(j);
+    const above = this.ends.momentsAbove(j);
+    const x = tLog2 - m.rmsLog2[i]!;
+    return quick ? enclosureQuick(below, above, m.spread[i]!, x, into, 0) : enclosureWith(below, above, m.spread[i]!, x, into, 0);
   }
 
   profile(i: number): MagnitudeProfile {
@@ -778,16 +781,16 @@ class OverflowNarrowing implements OverflowBounds {
   // each tensor's bounds on p_i (equal once integrated)
   private readonly lows: Float64Array;
   readonly highs: Float64Array;
-  // per tensor: 0 a bound from a larger scale (or 1), 1 its bounds here, or its value at the larger scale for a law
-  // without moment bounds (integrated next), 2 integrated
+  // per tensor: 0 a bound from a larger scale (or 1), 3 its moment bounds with the remainder at its peak here, 1 its
+  // bounds here, or its value at the larger scale for a law without moment bounds (integrated next), 2 integrated
   private readonly state: Uint8Array;
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
   // the tensors whose p_i can still move the product (upper bound above 2^−54), the widest bounds on top: by
   // open = log(1 − low) − log(1 − high), what each leaves open of the product (keyed by 1 − e^{−open}, the same order)
-  // (both made when the heap is first filled: often the sweep's bounds decide, and it never is)
+  // (the heap made when first filled: often the sweep's bounds decide, and it never is)
   private heap: IndexHeap | undefined;
-  private open: Float64Array | undefined;
+  private readonly open: Float64Array;
   private batch = 1;
   private largest = -1;
   // true from the first narrowing until the next has swept every tensor's shifted-tail bounds
@@ -802,6 +805,11 @@ class OverflowNarrowing implements OverflowBounds {
   private size = 0;
   private lowFactors: Float64Array | undefined;
   private highFactors: Float64Array | undefined;
+  // the tensors whose upper bound here may be above 2^−54 (the first `liveCount`), set when the bounds are first set
+  // and thinned after the sweep: the others leave every product exactly as it is (1 − p rounds to 1), their upper
+  // bounds here are the larger scale's (still valid: p_i grows with the scale), and no pass over the tensors visits them
+  private readonly live: Int32Array;
+  private liveCount = 0;
 
   constructor(
     private readonly point: HorizonPoint,
@@ -812,12 +820,14 @@ class OverflowNarrowing implements OverflowBounds {
     private readonly lead: { index: number } = { index: -1 },
   ) {
     const n = point.n;
-    this.state = new Uint8Array(n);
     this.levelLog2 = Math.log2(level);
-    // both bounds in one buffer
-    const buffer = new ArrayBuffer(16 * n);
+    // the bounds, the heap's keys, the live list and the states in one buffer (one allocation per scale and point)
+    const buffer = new ArrayBuffer(28 * n + n);
     this.lows = new Float64Array(buffer, 0, n);
     this.highs = new Float64Array(buffer, 8 * n, n);
+    this.open = new Float64Array(buffer, 16 * n, n);
+    this.live = new Int32Array(buffer, 24 * n, n);
+    this.state = new Uint8Array(buffer, 28 * n, n);
   }
 
   // the trees from the bounds (in one buffer), when the heap is first filled
@@ -831,10 +841,17 @@ class OverflowNarrowing implements OverflowBounds {
     const highFactors = new Float64Array(buffer, 16 * size, 2 * size).fill(1);
     const lows = this.lows;
     const highs = this.highs;
-    for (let i = 0; i < n; i++) highFactors[size + i] = 1 - highs[i]!;
-    for (let j = size - 1; j >= 1; j--) highFactors[j] = highFactors[2 * j]! * highFactors[2 * j + 1]!;
-    for (let i = 0; i < n; i++) lowFactors[size + i] = 1 - lows[i]!;
-    for (let j = size - 1; j >= 1; j--) lowFactors[j] = lowFactors[2 * j]! * lowFactors[2 * j + 1]!;
+    const live = this.live;
+    // the other leaves stay 1: their factors are exactly 1
+    for (let k = 0; k < this.liveCount; k++) {
+      const i = live[k]!;
+      highFactors[size + i] = 1 - highs[i]!;
+      lowFactors[size + i] = 1 - lows[i]!;
+    }
+    for (let j = size - 1; j >= 1; j--) {
+      highFactors[j] = highFactors[2 * j]! * highFactors[2 * j + 1]!;
+      lowFactors[j] = lowFactors[2 * j]! * lowFactors[2 * j + 1]!;
+    }
     this.lowFactors = lowFactors;
     this.highFactors = highFactors;
   }
@@ -850,7 +867,7 @@ class OverflowNarrowing implements OverflowBounds {
   // itself without two logarithms
   private push(i: number): void {
     const low = this.lows[i]!;
-    this.open![i] = (this.highs[i]! - low) / (1 - low);
+    this.open[i] = (this.highs[i]! - low) / (1 - low);
     this.heap!.push(i);
   }
 
@@ -863,13 +880,15 @@ class OverflowNarrowing implements OverflowBounds {
   value(): number {
     let none = 1;
     for (let i = 0; i < this.point.n; i++) {
-      const p = this.point.profile(i);
       let value: number;
       if (this.state[i] === 2) value = this.lows[i]!;
-      // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is
+      // 1 − p rounds to 1 for p ≤ 2^−54: such tensors leave the product exactly as it is (and their profiles unmade)
       else if (this.started && this.highs[i]! <= 2 ** -54) continue;
-      else if (probabilityAnyAboveBounds(p, this.level)[1] <= 2 ** -54) continue;
-      else value = probabilityAnyAbove(p, this.level);
+      else {
+        const p = this.point.profile(i);
+        if (probabilityAnyAboveBounds(p, this.level)[1] <= 2 ** -54) continue;
+        value = probabilityAnyAbove(p, this.level);
+      }
       none *= 1 - value;
     }
     return 1 - none;
@@ -897,19 +916,32 @@ class OverflowNarrowing implements OverflowBounds {
       // what a larger scale knows: its upper bound there, or its value widened for the rounding of the two integrals
       const above = this.above?.started ? this.above : undefined;
       let first = -1;
+      const live = this.live;
+      let count = 0;
       if (above === undefined) {
         highs.fill(1);
+        for (let i = 0; i < n; i++) live[i] = i;
+        count = n;
         if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
       } else {
-        for (let i = 0; i < n; i++) {
+        highs.set(above.highs);
+        const aboveLive = above.live;
+        for (let k = 0; k < above.liveCount; k++) {
+          const i = aboveLive[k]!;
           // a tensor integrated there whose law has no moment bounds is integrated here when its turn comes, without a
           // segment bound first: it was among the largest there, where the segment bound (up to twice the value) rarely
           // places it lower
-          if (above.known(i) && this.point.gaussian[i] === 0) this.state[i] = 1;
-          highs[i] = above.known(i) ? Math.min(1, above.highs[i]! * (1 + 1e-6)) : above.highs[i]!;
-          if (highs[i]! > 2 ** -54 && (first < 0 || highs[i]! > highs[first]!)) first = i;
+          if (above.known(i)) {
+            if (this.point.gaussian[i] === 0) this.state[i] = 1;
+            highs[i] = Math.min(1, highs[i]! * (1 + 1e-6));
+          }
+          if (highs[i]! > 2 ** -54) {
+            live[count++] = i;
+            if (first < 0 || highs[i]! > highs[first]!) first = i;
+          }
         }
       }
+      this.liveCount = count;
       if (first >= 0) this.integrate(first);
       // the others wait for the next narrowing, if the one integrated first does not decide with these bounds
       this.sweepPending = true;
@@ -917,30 +949,40 @@ class OverflowNarrowing implements OverflowBounds {
       // every tensor's shifted-tail bounds here where tighter, in one pass (a Gaussian-law tensor by two normal
       // tails): enough for most; the rest are then ordered by what they leave open
       this.sweepPending = false;
-      this.point.sweep(this.levelLog2, this.lows, highs, this.state);
-      for (let i = 0; i < n; i++) {
-        if (this.state[i] !== 2 && highs[i]! > 2 ** -54) {
-          this.heapPending = true;
-          break;
-        }
+      const live = this.live;
+      this.point.sweep(this.levelLog2, this.lows, highs, this.state, live, this.liveCount);
+      let count = 0;
+      for (let k = 0; k < this.liveCount; k++) {
+        const i = live[k]!;
+        if (!(highs[i]! > 2 ** -54)) continue;
+        live[count++] = i;
+        if (this.state[i] !== 2) this.heapPending = true;
       }
+      this.liveCount = count;
     } else {
       if (this.heapPending) {
         this.heapPending = false;
         this.buildProducts();
-        this.open = new Float64Array(n);
         this.heap = new IndexHeap(this.open);
-        for (let i = 0; i < n; i++) if (this.state[i] !== 2 && highs[i]! > 2 ** -54) this.push(i);
+        const live = this.live;
+        for (let k = 0; k < this.liveCount; k++) {
+          const i = live[k]!;
+          if (this.state[i] !== 2) this.push(i);
+        }
       }
-      // a batch of work: an upper bound costs about a quarter of an integral
+      // a batch of work: an upper bound costs about a quarter of an integral, the moment bounds with the remainder at
+      // its peak a tenth
       let work = this.batch;
       const heap = this.heap;
       while (heap !== undefined && work > 0 && heap.size > 0) {
         const i = heap.pop();
-        if (this.state[i] === 0) {
-          this.state[i] = 1;
-          // bounds from the moments of the largest element's level where the law allows, else the segment bound
-          const enclosed = this.point.enclose(i, this.level, this.levelLog2, ENCLOSURE);
+        const state = this.state[i]!;
+        if (state === 0 || state === 3) {
+          // bounds from the moments of the largest element's level where the law allows (first with the remainder at
+          // its peak, then shell by shell), else the segment bound
+          const quick = state === 0;
+          const enclosed = this.point.enclose(i, this.level, this.levelLog2, ENCLOSURE, quick);
+          this.state[i] = enclosed && quick ? 3 : 1;
           const upper = enclosed ? ENCLOSURE[1]! : probabilityAnyAboveUpper(this.point.profile(i), this.level);
           if (upper < highs[i]!) {
             highs[i] = upper;
@@ -951,7 +993,7 @@ class OverflowNarrowing implements OverflowBounds {
             this.setFactor(this.lowFactors, i, 1 - ENCLOSURE[0]!);
           }
           if (highs[i]! > 2 ** -54) this.push(i);
-          work -= 0.25;
+          work -= enclosed && quick ? 0.1 : 0.25;
         } else {
           this.integrate(i);
           work -= 1;
@@ -980,12 +1022,14 @@ class OverflowNarrowing implements OverflowBounds {
       noneHigh = this.lowFactors[1]!;
       noneLow = this.highFactors![1]!;
     } else {
-      // no trees yet: the products in the tensors' order
+      // no trees yet: the products over the live tensors in their order (the others' factors are exactly 1)
       const lows = this.lows;
       const highs = this.highs;
+      const live = this.live;
       noneHigh = 1;
       noneLow = 1;
-      for (let i = 0; i < lows.length; i++) {
+      for (let k = 0; k < this.liveCount; k++) {
+        const i = live[k]!;
         noneHigh *= 1 - lows[i]!;
         noneLow *= 1 - highs[i]!;
       }
