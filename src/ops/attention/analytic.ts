@@ -393,9 +393,10 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
         inputElements: matrixElements * d,
         output: heads,
         outputElements: projectionElements,
-        terms: Math.round(rows.keys),
+        // the longest row sums P keys (a causal mask's last row attends to all of them; rows.keys is the mean row length)
+        terms: P,
         guarded: false,
-        detail: ctx.details ? () => `probability-weighted values summed over ${fmt(rows.keys)} keys` : "",
+        detail: ctx.details ? () => (spec.causal ? `probability-weighted values summed over up to ${P} keys (the causal mask's longest row)` : `probability-weighted values summed over ${P} keys`) : "",
       },
       {
         kind: "accumulation",
