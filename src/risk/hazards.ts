@@ -67,6 +67,7 @@ const LOSS_SUM_ERROR = 12;
 const GRADIENT_ACCUMULATION_ERROR = 13;
 const GRADIENT_ACCUMULATION_OVERFLOW = 14;
 const GRADIENT_ACCUMULATION_FLUSH = 15;
+const LOSS_PARTIAL_SUM = 16;
 
 /**
  * One evaluation before the start/end choice, graded. The records are reused from call to call (see `DraftList`):
@@ -402,11 +403,23 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       return site.layer + tail.text;
     }
     case LOSS_SUM_ERROR: {
+      const head = `${site.terms > 1 ? `The loss sums its ${site.terms} terms` : `The loss averages ${draft.extra} terms, summed`} in ${format}, the accumulate format: `;
+      const u = context.accumulate.unitRoundoff;
+      const term = draft.topValue;
+      const rounding = sumRoundingError(draft.extra, u);
       const said =
-        `${site.terms > 1 ? `The loss sums its ${site.terms} terms` : `The loss averages ${draft.extra} terms, summed`} in ${format}, the accumulate format: relative rounding error at least ` +
-        `√n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
+        value > rounding
+          ? head +
+            `once a sequential sum passes ${limitNumber(stallLevel(term, u))}, half its ulp exceeds a term (about ${plainNumber(term)}) and the sum stops growing, ` +
+            `${sharePercent(value)} short of the ${plainNumber(draft.extra * term)} it should reach, a systematic error beyond √n·u = ${plainNumber(rounding)} (${verdictWord(verdict)})`
+          : head + `relative rounding error at least √n·u = ${plainNumber(value)} (${verdictWord(verdict)})`;
       return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`).`;
     }
+    case LOSS_PARTIAL_SUM:
+      return (
+        `The loss sums its ${site.averaged ?? 1} terms before it divides, in ${format}, the accumulate format: the sum ` +
+        `(predicted ${plainNumber(draft.extra)}) passes ${limitNumber(context.accumulate.overflowLevel)} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
+      );
     case ACCUMULATION_OVERFLOW: {
       const tail = ACCUMULATION_OVERFLOW_TAIL;
       if (!tail.holds(format, verdict, side, value, 0, 0)) {
@@ -825,10 +838,40 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
   // an accumulation's (sumRoundingError, √n·u). Its terms share one sign, so a sequential sum in a narrow format does
   // worse once it passes about a term/u (each term then below half an ulp): √n·u is the least it carries.
   const summed = site.terms > 1 ? site.terms : (site.averaged ?? 1);
-  if (summed > 1) {
-    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", sumRoundingError(summed, context.accumulate.unitRoundoff), null,
-      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, summed, false);
+  // A mean sums its terms before it divides: that sum, not the mean, is what the accumulate format holds (the loss scale
+  // multiplies the mean, after the division: common practice), n times a term for terms of one sign
+  if (site.terms <= 1 && summed > 1) {
+    const limits = context.accumulate;
+    const sum = profileCopy(input, 1, 0, summed);
+    const level = limits.overflowLevel;
+    const settled = settledAnyAbove(sum, level, 1);
+    const value = settled === 0 || settled === 1 ? settled : probabilityAnyAbove(sum, level);
+    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", value, level / summed,
+      t.overflowAtRisk, t.overflowFails, false, LOSS_PARTIAL_SUM, sum.rms, false);
   }
+  if (summed > 1) {
+    const u = context.accumulate.unitRoundoff;
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", Math.max(sumRoundingError(summed, u), stalledShortfall(summed, input.rms, u)), null,
+      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, summed, false);
+    // the term the sentence compares with the running sum's ulp (the draft's spare number; no tensor is named here)
+    (list.items[list.count - 1] as Draft).topValue = input.rms;
+  }
+}
+
+// Where a sequential sum of positive terms of size `term` stops growing: in the binade [2^e, 2^(e+1)) half an ulp is
+// u·2^e (u = 2^-p, IEEE 754-2019 §2.1 and Table 3.5), and once it passes a term, adding the term rounds back to the
+// sum (round to nearest): the sum stalls at the first power of two above term/u (own algebra).
+function stallLevel(term: number, unitRoundoff: number): number {
+  return 2 ** (Math.floor(Math.log2(term / unitRoundoff)) + 1);
+}
+
+// The relative shortfall of such a sum of n terms, 1 − stall/(n·term) where it stalls before its end, else 0: a
+// systematic error (every lost term is lost on the same side), which √n·u for random-sign errors does not cover
+function stalledShortfall(n: number, term: number, unitRoundoff: number): number {
+  if (!(term > 0)) return 0;
+  const exact = n * term;
+  const stall = stallLevel(term, unitRoundoff);
+  return exact > stall ? 1 - stall / exact : 0;
 }
 
 // Gradients summed over `terms` worker-and-step contributions: the engine's predicted sum (`output`) when it

@@ -69,21 +69,25 @@ describe("a summed loss's rounding error", () => {
   // 4096 per-example losses summed: √n·u as an accumulation's (Higham & Mary 2019, Theorem 2.4; from memory), u = 2^-8
   // in bfloat16 (Intel, bfloat16 – Hardware Numerics Definition, 2018), 2^-24 in binary32 (IEEE 754-2019 Table 3.5)
   const loss = (terms: number) => site({ kind: "loss-value", layer: "loss", terms, input: profile({ shape: "constant", rms: 7.4 }) });
-  it("summed in a bfloat16 accumulator: √4096·2^-8 = 0.25 fails, with the remedy; in binary32 it fits", () => {
+  // terms of 7.4 stall a sequential bfloat16 sum at 2048, where half an ulp (8) passes them (the binade [2048, 4096) has
+  // ulp 2^(11 − 7) = 16, IEEE 754-2019 §2.1 with p = 8): 1 − 2048/(4096·7.4) short, beyond √n·u = 0.25
+  const stalled = 1 - 2048 / (4096 * 7.4);
+  it("summed in a bfloat16 accumulator: stalls at 2048, 93% short (beyond √4096·2^-8 = 0.25), fails with the remedy; in binary32 it fits", () => {
     const narrow = evaluateHazard(loss(4096), context({ activations: BFLOAT16_FTZ, accumulate: BFLOAT16_FTZ }));
     const error = narrow.evaluations.find((e) => e.measure === "relative-error");
-    expect(error?.value).toBe(0.25);
+    expect(error?.value).toBe(stalled);
+    expect(error?.sentence).toContain("once a sequential sum passes 2048");
     expect(error?.verdict).toBe("fails");
     expect(error?.sentence).toContain("accumulate in binary32 (`accumulate: binary32`)");
     const wide = evaluateHazard(loss(4096), context({ activations: BFLOAT16_FTZ, accumulate: BINARY32 }));
     expect(wide.evaluations.find((e) => e.measure === "relative-error")?.value).toBeCloseTo(64 * 2 ** -24, 15);
     expect(wide.findings.some((f) => f.kind === "accumulation-error")).toBe(false);
   });
-  it("a loss of one term adds no rounding evaluation; a mean of 4096 terms is their sum divided: √4096·2^-8 = 0.25 fails in bfloat16", () => {
+  it("a loss of one term adds no rounding evaluation; a mean of 4096 terms is their sum divided: it stalls in bfloat16 as the sum does, and fails", () => {
     expect(evaluateHazard(loss(1), context()).evaluations.some((e) => e.measure === "relative-error")).toBe(false);
     const mean = evaluateHazard({ ...loss(1), averaged: 4096 }, context({ activations: BFLOAT16_FTZ, accumulate: BFLOAT16_FTZ }));
     const error = mean.evaluations.find((e) => e.measure === "relative-error");
-    expect(error?.value).toBe(0.25);
+    expect(error?.value).toBe(stalled);
     expect(error?.verdict).toBe("fails");
     expect(error?.sentence).toContain("The loss averages 4096 terms, summed in bfloat16");
   });
@@ -213,8 +217,10 @@ describe("the loss value", () => {
     const loss = site({ kind: "loss-value", terms: 4096, input: profile({ shape: "constant", rms: Math.log(1000) }) });
     const unscaled = evaluateHazard(loss, context({ accumulate: BINARY16 }));
     expect(unscaled.evaluations.filter((e) => e.measure === "overflow-risk").map((e) => e.verdict)).toEqual(["fits"]);
-    // the sum's rounding, √4096·2^-11 = 0.031 in binary16 (IEEE 754-2019 Table 3.5, p = 11), is at risk on its own
-    expect(unscaled.findings.map((f) => [f.kind, f.severity])).toEqual([["accumulation-error", "at-risk"]]);
+    // the sum's rounding: beyond √4096·2^-11 = 0.031 in binary16 (IEEE 754-2019 Table 3.5, p = 11), a sequential sum
+    // of terms of 6.91 stalls at 16384, where half an ulp (8) passes them: 1 − 16384/28294 = 42% short, which fails
+    expect(unscaled.findings.map((f) => [f.kind, f.severity])).toEqual([["accumulation-error", "fails"]]);
+    expect(unscaled.findings[0]?.value).toBeCloseTo(1 - 16384 / (4096 * Math.log(1000)), 12);
     const scaled = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 }));
     expect(hazardVerdict(scaled)).toBe("fails");
     expect(scaled.findings[0]?.kind).toBe("loss-value-overflow");
