@@ -200,7 +200,8 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   if (f.width > 1) {
     // each kind's sizes before → after (÷ rounded to the nearest whole number, at least 1), so an uneven factor shows what it did
     const order = ["input features", "dense widths", "conv channels", "embedding widths", "attention heads", "gated hidden widths"];
-    const sorted = [...sizes].sort(([a], [b]) => order.indexOf(a) - order.indexOf(b));
+    // widths only: the global pools' windows shrink with the image, and the image's line names them
+    const sorted = [...sizes].filter(([kind]) => order.includes(kind)).sort(([a], [b]) => order.indexOf(a) - order.indexOf(b));
     const kinds = sorted.map(([kind, seen]) => {
       const pairs = [...seen.values()];
       const listed = pairs.slice(0, 4).map(([from, to]) => `${from} → ${to}`).join(", ");

@@ -326,6 +326,10 @@ layers:
     const oddBuilt = buildGraph(odd.spec);
     expect(oddBuilt.ok && oddBuilt.graph.layers.find((l) => l.spec.family === "average-pool")?.output).toMatchObject({ layout: "image", height: 1, width: 1 });
     expect(odd.report.changes.join(" ")).toContain("image 32×32 → 11×11; windows of the pools that cover the whole image 8 → 2");
+    // widths and image together: the pool's window is told once, on the image's line, not among the widths
+    const both = shrinkSpec(s, { width: 2, image: 2 }).report.changes;
+    expect(both[0]).toMatch(/^widths ÷2, rounded to the nearest whole number: conv channels 8 → 4; the output layer "/);
+    expect(both.join(" ")).not.toContain("global pool windows");
   });
 
   // a YAML key __proto__ is an own property (YAML 1.2 maps; the spec loader keeps it as one); an assignment
