@@ -10,7 +10,6 @@ import {
   shrinkSpec,
   simulate,
   SimulationTooLarge,
-  nonzeroShare,
   zeroAfterStorage,
   type Comparison,
   type ComparisonRow,
@@ -463,9 +462,8 @@ function describe(r: ComparisonRow): string {
   const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
   const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
   const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)`;
-  const [flushedMeasured, flushedPredicted] = [nonzeroShare(m.counts.flushed, m.zeroFraction), nonzeroShare(r.predictedFlushed, r.predictedZeroFraction)];
-  const flushedText = !Number.isNaN(flushedPredicted) && flushedMeasured !== flushedPredicted
-    ? `; nonzero elements flushed ${share(flushedMeasured)} measured, ${share(flushedPredicted)} predicted`
+  const flushedText = !Number.isNaN(r.predictedNonzeroFlushed) && r.measuredNonzeroFlushed !== r.predictedNonzeroFlushed
+    ? `; nonzero elements flushed ${share(r.measuredNonzeroFlushed)} measured, ${share(r.predictedNonzeroFlushed)} predicted`
     : "";
   return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}`;
 }

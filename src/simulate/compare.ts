@@ -72,6 +72,10 @@ export interface ComparisonRow {
   predictedZeroFraction: number;
   /** predicted share of elements flushed to zero in the format (NaN for 8-bit formats stored with scale factors) */
   predictedFlushed: number;
+  /** measured share of the nonzero elements flushed (exact zeros before storage set apart), as check's verdict levels read it */
+  measuredNonzeroFlushed: number;
+  /** predicted share of the nonzero elements flushed (NaN where `predictedFlushed` is) */
+  predictedNonzeroFlushed: number;
   /** predicted share of elements above the overflow threshold */
   predictedOverflow: number;
   /** the prediction for the full-size network, when the run was shrunk */
@@ -139,7 +143,7 @@ export function predictedOverflowFraction(profile: MagnitudeProfile, format: For
 }
 
 /** A share of all elements as a share of the nonzero ones (exact zeros before storage set apart). */
-export function nonzeroShare(share: number, zeroFraction: number): number {
+function nonzeroShare(share: number, zeroFraction: number): number {
   return zeroFraction < 1 ? share / (1 - zeroFraction) : 0;
 }
 
@@ -172,6 +176,8 @@ export function compareWithPrediction(
     const differenceBinades = !hasFiniteMagnitudes(m) ? NaN : m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
     // 8-bit formats with scale factors: the prediction carries no scale, so flushed fractions are not compared
     const predictedFlushed = scaled8 && format.bits === 8 ? NaN : predictedFlushedFraction(p.start, format, flushSubnormals);
+    const measuredNonzeroFlushed = nonzeroShare(m.counts.flushed, m.zeroFraction);
+    const predictedNonzeroFlushed = nonzeroShare(predictedFlushed, p.start.zeroFraction);
     const row: ComparisonRow = {
       id: measured.id,
       layer: measured.layer,
@@ -184,11 +190,13 @@ export function compareWithPrediction(
       differenceBinades,
       predictedZeroFraction: p.start.zeroFraction,
       predictedFlushed,
+      measuredNonzeroFlushed,
+      predictedNonzeroFlushed,
       predictedOverflow: predictedOverflowFraction(p.start, format),
       disagrees:
         !(Math.abs(differenceBinades) <= tolerance.binades) ||
         (!Number.isNaN(predictedFlushed) && !(Math.abs(zeroAfterStorage(m) - (p.start.zeroFraction + predictedFlushed)) <= tolerance.flushed)) ||
-        (!Number.isNaN(predictedFlushed) && crossesFlushedLevel(nonzeroShare(m.counts.flushed, m.zeroFraction), nonzeroShare(predictedFlushed, p.start.zeroFraction), tolerance.flushedLevels)),
+        (!Number.isNaN(predictedFlushed) && crossesFlushedLevel(measuredNonzeroFlushed, predictedNonzeroFlushed, tolerance.flushedLevels)),
     };
     const f = full.get(measured.id);
     if (f !== undefined && result.shrink.shrunk) {

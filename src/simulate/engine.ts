@@ -338,17 +338,21 @@ function runMicroBatch(setup: Setup, model: Model, recorder: Recorder): { loss: 
 function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; recorder: Recorder; gradients: Map<string, Float64Array> } {
   const recorder = new Recorder(setup, measure);
   const sums = new Map<string, Float64Array>();
-  // Σ over the micro-batches run of each gradient's squared norm, for the sum of those not run
+  // Σ over the micro-batches run of each gradient's squared norm, for the sum of those not run: only missingScale's
+  // estimate of the noise reads it, when some micro-batches are left out and at least two run
   const squares = new Map<string, number>();
+  const spread = setup.microBatches >= 2 && setup.microBatches < setup.wantedMicroBatches;
   let loss = 0;
   for (let m = 0; m < setup.microBatches; m++) {
     recorder.active = measure && m === 0;
     const r = runMicroBatch(setup, model, recorder);
     if (m === 0) loss = r.loss;
     for (const [key, g] of r.gradients) {
-      let square = 0;
-      for (let i = 0; i < g.length; i++) square += g[i]! * g[i]!;
-      squares.set(key, (squares.get(key) ?? 0) + square);
+      if (spread) {
+        let square = 0;
+        for (let i = 0; i < g.length; i++) square += g[i]! * g[i]!;
+        squares.set(key, (squares.get(key) ?? 0) + square);
+      }
       const sum = sums.get(key);
       // the first micro-batch's gradient is a fresh array from its kernel, used nowhere else: it becomes the sum
       if (sum === undefined) sums.set(key, g);
@@ -380,9 +384,10 @@ function runStep(setup: Setup, model: Model, measure: boolean): { loss: number; 
  */
 export function missingScale(sum: Float64Array, squares: number, run: number, wanted: number): number {
   if (wanted <= run) return 1;
+  if (run < 2) return Math.sqrt(wanted / run);
   let norm = 0;
   for (let i = 0; i < sum.length; i++) norm += sum[i]! * sum[i]!;
-  if (run < 2 || !(norm > 0)) return Math.sqrt(wanted / run);
+  if (!(norm > 0)) return Math.sqrt(wanted / run);
   const noise = Math.max(0, (squares - norm / run) / (run - 1));
   const mean = Math.max(0, (norm - run * noise) / (run * run));
   return Math.sqrt((wanted * wanted * mean + wanted * noise) / norm);

@@ -11,7 +11,7 @@ import type { SimulateOptions, SimulationResult } from "./types.js";
 
 export * from "./types.js";
 export { runSimulation, learningRate, resolvePlan, DEFAULT_MEMORY_LIMIT, DEFAULT_MICRO_BATCHES } from "./engine.js";
-export { compareWithPrediction, nonzeroShare, zeroAfterStorage, predictedFlushedFraction, predictedOverflowFraction, STANDING_TOLERANCE } from "./compare.js";
+export { compareWithPrediction, zeroAfterStorage, predictedFlushedFraction, predictedOverflowFraction, STANDING_TOLERANCE } from "./compare.js";
 export type { Comparison, ComparisonRow, Tolerance } from "./compare.js";
 export { shrinkSpec, shrinkFactors, estimateMemory, suggestShrink, NO_SHRINK } from "./shrink.js";
 export { measureTensor, medianStats } from "./stats.js";

@@ -64,13 +64,14 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
   const out = outputLayer(spec.layers);
   // what each kind of width became, distinct "from → to" pairs in the order met, so the report says it
   const sizes = new Map<string, Map<string, [number, number]>>();
+  const record = (kind: string, from: number, to: number): void => {
+    const seen = sizes.get(kind) ?? new Map<string, [number, number]>();
+    seen.set(`${from}`, [from, to]);
+    sizes.set(kind, seen);
+  };
   const size = (kind: string, from: number, factor: number): number => {
     const to = div(from, factor);
-    if (factor > 1) {
-      const seen = sizes.get(kind) ?? new Map<string, [number, number]>();
-      seen.set(`${from}`, [from, to]);
-      sizes.set(kind, seen);
-    }
+    if (factor > 1) record(kind, from, to);
     return to;
   };
   // pools whose window covers their whole input image (a global pool) in every use: they keep covering it when the
@@ -159,9 +160,7 @@ export function shrinkSpec(spec: NetworkSpec, partial: Partial<ShrinkFactors> = 
       const pool = copy as LayerSpec & { size: number; stride: number };
       pool.size = to;
       pool.stride = to;
-      const seen = sizes.get("global pool windows") ?? new Map<string, [number, number]>();
-      seen.set(`${from}`, [from, to]);
-      sizes.set("global pool windows", seen);
+      record("global pool windows", from, to);
     }
   }
 

@@ -6,7 +6,11 @@
  */
 import { describe, expect, it } from "vitest";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/index.js";
-import { crossesFlushedLevel, STANDING_TOLERANCE } from "../../src/simulate/compare.js";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+import { compareWithPrediction, crossesFlushedLevel, STANDING_TOLERANCE } from "../../src/simulate/compare.js";
+import { runSimulation } from "../../src/simulate/engine.js";
 
 describe("flushed shares on two sides of a verdict level", () => {
   it("the standing tolerance's levels are check's flushed thresholds", () => {
@@ -31,5 +35,43 @@ describe("flushed shares on two sides of a verdict level", () => {
   it("no levels, or a share that is not a number (8-bit formats with scale factors), never disagree this way", () => {
     expect(crossesFlushedLevel(0.5, 0, [])).toBe(false);
     expect(crossesFlushedLevel(0.5, NaN, [0.01])).toBe(false);
+  });
+});
+
+describe("a comparison row's shares of the nonzero elements flushed", () => {
+  // an invented tide-gauge smoother, its gradients held at a loss scale of 2^-16 so that binary16 (flush bound 2^-25,
+  // IEEE 754-2019 §3.6: emin −14, p = 11) flushes part of them; ReLU zeros half of the hidden values
+  const text = `name: tide-gauge
+input: { features: 64, scale: 1 }
+training: { batch: 32, loss: { kind: mean-squared-error } }
+precision: { name: half, activations: binary16, weights: binary16, gradients: binary16, accumulate: binary32, loss-scale: 1.52587890625e-5 }
+layers:
+  - { type: dense, width: 64, init: he-normal }
+  - relu
+  - { type: dense, width: 8, init: glorot-normal }
+`;
+
+  it("divide the flushed share of all elements by the share that is not an exact zero, measured and predicted", () => {
+    const parsed = parseSpec(text, "tide-gauge.yaml");
+    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+    const built = buildGraph(parsed.spec);
+    if (!built.ok) throw new Error("does not build");
+    const comparison = compareWithPrediction(runSimulation(parsed.spec), predict(built.graph, parsed.spec));
+    // the definition of a share of the nonzero elements (README "Verdicts": flushed shares count nonzero elements only)
+    let measuredFlushing = 0;
+    let predictedWithZeros = 0;
+    for (const row of comparison.rows) {
+      const m = row.measured.median;
+      // a tensor of exact zeros has no nonzero element to flush: 0
+      if (m.zeroFraction === 1) expect(row.measuredNonzeroFlushed).toBe(0);
+      else expect(row.measuredNonzeroFlushed).toBeCloseTo(m.counts.flushed / (1 - m.zeroFraction), 15);
+      if (row.predictedZeroFraction === 1) expect(row.predictedNonzeroFlushed).toBe(0);
+      else expect(row.predictedNonzeroFlushed).toBeCloseTo(row.predictedFlushed / (1 - row.predictedZeroFraction), 15);
+      if (m.counts.flushed > 0.01) measuredFlushing++;
+      if (row.predictedZeroFraction > 0.3 && row.predictedFlushed > 0) predictedWithZeros++;
+    }
+    // the cases the shares are for: stored values that flush, and a tensor with exact zeros (after the ReLU)
+    expect(measuredFlushing).toBeGreaterThan(0);
+    expect(predictedWithZeros).toBeGreaterThan(0);
   });
 });
