@@ -3,7 +3,7 @@ import { hasFiniteMagnitudes } from "../simulate/stats.js";
 import type { MagnitudeProfile } from "../magnitude/index.js";
 import { predict } from "../magnitude/index.js";
 import { escapeHtml } from "../report/html.js";
-import { formatBinades, formatBytes, formatPercent, formatValue } from "../report/number.js";
+import { formatBinades, formatBytes, formatPercent, formatProbability, formatValue } from "../report/number.js";
 import { renderTable, type Cell } from "../report/table.js";
 import {
   resolvePlan,
@@ -23,7 +23,7 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
-import { plainNumber, scaleWords } from "../risk/words.js";
+import { scaleWords } from "../risk/words.js";
 import type { SpecResult } from "../spec/index.js";
 import type { NetworkSpec } from "../spec/types.js";
 import { parseLossScale } from "./loss-scale.js";
@@ -241,15 +241,6 @@ export function simulatedFinding(counts: MeasuredTensor["median"]["counts"]): bo
   );
 }
 
-function share(x: number): string {
-  return x === 0 ? "0" : formatPercent(x);
-}
-
-// a share of the squared norm, as check words the subnormal noise (1.4e-6, not 0.00014%)
-function noiseShare(x: number): string {
-  return x === 0 ? "0" : plainNumber(x);
-}
-
 /** A measured magnitude, or "none finite" when every nonzero element was infinite or NaN (its 0 is no measurement). */
 function magnitudeCell(stats: TensorStats, value: number, blank = ""): string {
   return hasFiniteMagnitudes(stats) ? formatValue(value) : blank;
@@ -325,10 +316,11 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       const cells: Record<string, Cell> = {
         tensor: `${t.id} (accumulate)`,
         format: held.format,
-        flushed: share(held.flushed),
-        subnormal: share(held.subnormal),
-        "subnormal noise": noiseShare(held.subnormalNoise),
-        overflow: share(overflowShare(held)),
+        flushed: formatPercent(held.flushed),
+        subnormal: formatPercent(held.subnormal),
+        // the subnormal noise is a ratio to the squared norm, no share of elements: written as check's table writes it
+        "subnormal noise": formatProbability(held.subnormalNoise),
+        overflow: formatPercent(overflowShare(held)),
       };
       accumulateLine.push(columns.map((c) => cells[c.title] ?? ""));
     }
@@ -343,13 +335,13 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       magnitudeCell(m, m.quantiles[0]),
       magnitudeCell(m, m.quantiles[2]),
       magnitudeCell(m, m.quantiles[4]),
-      share(m.zeroFraction),
-      ...(nonFinite ? [share(m.nonFiniteFraction)] : []),
-      row && !Number.isNaN(row.predictedFlushed) ? share(row.predictedFlushed) : "",
-      share(m.counts.flushed),
-      share(m.counts.subnormal),
-      noiseShare(m.counts.subnormalNoise),
-      share(overflowShare(m.counts)),
+      formatPercent(m.zeroFraction),
+      ...(nonFinite ? [formatPercent(m.nonFiniteFraction)] : []),
+      row && !Number.isNaN(row.predictedFlushed) ? formatPercent(row.predictedFlushed) : "",
+      formatPercent(m.counts.flushed),
+      formatPercent(m.counts.subnormal),
+      formatProbability(m.counts.subnormalNoise),
+      formatPercent(overflowShare(m.counts)),
       ...(result.steps > 0 ? [t.after !== undefined ? magnitudeCell(t.after, t.after.rms, "none finite") : ""] : []),
     ];
     return [line, ...accumulateLine];
@@ -408,7 +400,7 @@ function lossTableHtml(result: SimulationResult): string {
   if (loss === undefined) return "";
   const line = (name: string, c: FormatCounts): string =>
     `<tr><td>${escapeHtml(name)}</td><td>${escapeHtml(c.format)}</td>` +
-    [c.flushed, c.subnormal, overflowShare(c)].map((x) => `<td>${escapeHtml(share(x))}</td>`).join("") +
+    [c.flushed, c.subnormal, overflowShare(c)].map((x) => `<td>${escapeHtml(formatPercent(x))}</td>`).join("") +
     "</tr>";
   const held = loss.median.accumulateCounts;
   return (
@@ -460,10 +452,10 @@ function describe(r: ComparisonRow): string {
   const m = r.measured.median;
   const zero = zeroAfterStorage(m);
   const predictedZero = r.predictedZeroFraction + r.predictedFlushed;
-  const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${share(zero)} measured, ${share(predictedZero)} predicted`;
+  const zeroText = Number.isNaN(predictedZero) ? "" : `; zero after storage ${formatPercent(zero)} measured, ${formatPercent(predictedZero)} predicted`;
   const difference = Number.isNaN(r.differenceBinades) ? "" : ` (${r.differenceBinades >= 0 ? "+" : ""}${formatBinades(r.differenceBinades)} binades)`;
   const flushedText = !Number.isNaN(r.predictedNonzeroFlushed) && r.measuredNonzeroFlushed !== r.predictedNonzeroFlushed
-    ? `; nonzero elements flushed ${share(r.measuredNonzeroFlushed)} measured, ${share(r.predictedNonzeroFlushed)} predicted`
+    ? `; nonzero elements flushed ${formatPercent(r.measuredNonzeroFlushed)} measured, ${formatPercent(r.predictedNonzeroFlushed)} predicted`
     : "";
   return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}`;
 }
@@ -479,7 +471,7 @@ function stepLines(result: SimulationResult): string[] {
       formatValue(h.learningRate),
       formatValue(h.loss),
       h.skipped ? "skipped (overflow)" : "applied",
-      swamped.length > 0 ? share(Math.max(...swamped)) : "",
+      swamped.length > 0 ? formatPercent(Math.max(...swamped)) : "",
       ratios.length > 0 ? formatValue(Math.max(...ratios)) : "",
     ];
   });

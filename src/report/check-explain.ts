@@ -155,7 +155,7 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     const numbers =
       `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)} ` +
       `(rounding noise ${formatProbability(w.subnormalNoise)} of the squared norm), ` +
-      `flushed energy ${formatProbability(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
+      `flushed energy ${formatPercent(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
       `headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}` +
       (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, ${scaleWords(result, risk.format)} 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +
       ".";

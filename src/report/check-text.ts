@@ -9,7 +9,7 @@ import { VERDICT_RANK } from "../risk/verdict-order.js";
 import { itemSummary, lossScaleClause, namesGradientFormats, remedyWords } from "./loss-scale.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { planSettings } from "./plan-settings.js";
-import { formatBinades, formatProbability, formatValue } from "./number.js";
+import { formatBinades, formatPercent, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { PLAN_ENTRY_WORDS } from "./summary.js";
 import { renderTable, type Cell } from "./table.js";
@@ -264,7 +264,7 @@ export function renderTensorTable(rows: readonly { tensor: TensorCheck; risk: Te
       pair(statistics.start.max, statistics.end.max),
       binadesCell(risk.worst.headroom),
       binadesCell(risk.worst.footroom),
-      formatProbability(risk.worst.flushedFraction),
+      formatPercent(risk.worst.flushedFraction),
       formatProbability(risk.worst.subnormalNoise),
       formatProbability(risk.worst.overflowRisk),
       verdictText(risk.verdict, style),

@@ -19,10 +19,12 @@ export function formatBinades(binades: number): string {
 }
 
 /**
- * A probability or a fraction in [0, 1]: `0` and `1` exactly; below 0.01 in exponent form with two
- * significant digits (`3.2e-5`); otherwise two significant digits (`0.25`, `0.5`).
+ * A per-step probability, or a ratio in [0, 1] that is no share of elements (the subnormal noise against the squared
+ * norm): `0` and `1` exactly; below 0.01 in exponent form with two significant digits, trailing zeros dropped as the
+ * findings' sentences drop them (`3.2e-5`, `1e-9`); otherwise two significant digits (`0.25`, `0.5`).
  * Values outside [0, 1] or NaN read `n/a`.
  * @example formatProbability(0.000032) // => "3.2e-5"
+ * @example formatProbability(1e-9) // => "1e-9"
  */
 export function formatProbability(p: number): string {
   if (Number.isNaN(p) || p < 0 || p > 1) return NOT_A_NUMBER;
@@ -30,7 +32,7 @@ export function formatProbability(p: number): string {
   if (p === 1) return "1";
   // integrated to 1e-12 absolute (README, "Estimates"): smaller values have no resolved digit
   if (p < 1e-12) return "<1e-12";
-  if (p < 0.01) return p.toExponential(1);
+  if (p < 0.01) return trimMantissa(p.toExponential(1));
   const text = trimZeros(p.toPrecision(2));
   // 0.995 and above would round up to "1.0", which would read as certainty
   return text === "1" ? "0.99" : text;
@@ -112,15 +114,33 @@ export function formatValue(value: number, digits = 3): string {
 }
 
 /**
- * A share as a percentage with one decimal: `12.5%`; tiny nonzero shares read `<0.1%`.
+ * A share (of elements, of a squared norm, of memory) as a percentage: one decimal from 0.1% up (`12.5%`), two
+ * significant digits below (`0.024%`, in exponent form under 0.001%: `2.4e-6%`), `<1e-6%` under the sentences' floor;
+ * none and all exactly `0%` and `100%`, one short of all `>99.9%`.
  * @example formatPercent(0.125) // => "12.5%"
+ * @example formatPercent(2.4e-8) // => "2.4e-6%"
  */
 export function formatPercent(share: number): string {
   if (Number.isNaN(share)) return NOT_A_NUMBER;
-  if (share > 0 && share < 0.0005) return "<0.1%";
-  // likewise at the top: a share short of all would round to "100.0%", which reads as certainty
+  // exact ends without a decimal: "0.0%" would read as a rounded small share
+  if (share === 0) return "0%";
+  if (share === 1) return "100%";
+  // a share short of all would round to "100.0%", which reads as certainty
   if (share < 1 && share >= 0.9995) return ">99.9%";
-  return `${(share * 100).toFixed(1)}%`;
+  const percent = share * 100;
+  if (percent >= 0.1 || percent < 0) return `${percent.toFixed(1)}%`;
+  // a modelled share below 1e-8 is a law's far tail, read to no useful digit: the findings' sentences give only that
+  // bound ("less than 1e-6%", src/risk/words.ts), and so does every table (display only; common practice)
+  if (percent < 1e-6) return "<1e-6%";
+  // below 0.1% one decimal would read 0.0% for shares above an energy threshold of 0.01%: two significant digits,
+  // plain down to 0.001% and in exponent form below, as the sentences write numbers (src/risk/words.ts plainNumber)
+  return percent >= 1e-3 ? `${String(Number(percent.toPrecision(2)))}%` : `${trimMantissa(percent.toExponential(1))}%`;
+}
+
+// "1.0e-9" → "1e-9": an exponent form's mantissa without trailing zeros
+function trimMantissa(text: string): string {
+  const [mantissa = "", exponent = ""] = text.split("e");
+  return `${trimZeros(mantissa)}e${exponent.replace("+", "")}`;
 }
 
 function trimZeros(text: string): string {

@@ -24,7 +24,9 @@ describe("formatBinades", () => {
 describe("formatProbability", () => {
   test("exponent form below 0.01", () => {
     expect(formatProbability(0.000032)).toBe("3.2e-5");
-    expect(formatProbability(1e-12)).toBe("1.0e-12");
+    // trailing zeros dropped, as the findings' sentences write numbers (src/risk/words.ts plainNumber: "1e-9")
+    expect(formatProbability(1e-12)).toBe("1e-12");
+    expect(formatProbability(2e-5)).toBe("2e-5");
     // below the 1e-12 the per-step probabilities are integrated to (README, Estimates), no digit is resolved
     expect(formatProbability(1e-300)).toBe("<1e-12");
     expect(formatProbability(4.2e-232)).toBe("<1e-12");
@@ -82,11 +84,16 @@ describe("values", () => {
   });
   test("formatPercent", () => {
     expect(formatPercent(0.125)).toBe("12.5%");
-    expect(formatPercent(0.0001)).toBe("<0.1%");
-    expect(formatPercent(0)).toBe("0.0%");
-    // as "<0.1%" at the bottom: a share short of all is not rounded up to certainty (common practice)
+    // below 0.1%, two significant digits (plain to 0.001%, then exponent form), the sentences' floor at 1e-6%
+    expect(formatPercent(0.0001)).toBe("0.01%");
+    expect(formatPercent(0.00099)).toBe("0.099%");
+    expect(formatPercent(1.5e-5)).toBe("0.0015%");
+    expect(formatPercent(2.4e-8)).toBe("2.4e-6%");
+    expect(formatPercent(9e-9)).toBe("<1e-6%");
+    expect(formatPercent(0)).toBe("0%");
+    // a share short of all is not rounded up to certainty (common practice)
     expect(formatPercent(0.9999950632426285)).toBe(">99.9%");
     expect(formatPercent(0.9994)).toBe("99.9%");
-    expect(formatPercent(1)).toBe("100.0%");
+    expect(formatPercent(1)).toBe("100%");
   });
 });
