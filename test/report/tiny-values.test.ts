@@ -42,21 +42,8 @@ describe("tiny values read alike in every text output", () => {
   });
 
   it("simulate's table writes the measured shares and the subnormal noise as check's table does", () => {
-    // an invented tide-gauge smoother, its gradients held at a loss scale of 2^-16 so that binary16 (smallest subnormal
-    // 2^-24, IEEE 754-2019 §3.6) flushes part of them and rounds others as subnormals
-    const tide = parseSpec(
-      [
-        "name: tide-gauge",
-        "input: { features: 64, scale: 1 }",
-        "training: { batch: 32, loss: { kind: mean-squared-error } }",
-        "precision: { name: half, activations: binary16, weights: binary16, gradients: binary16, accumulate: binary32, loss-scale: 1.52587890625e-5 }",
-        "layers:",
-        "  - { type: dense, width: 64, init: he-normal }",
-        "  - relu",
-        "  - { type: dense, width: 8, init: glorot-normal }",
-      ].join("\n"),
-      "tide-gauge.yaml",
-    );
+    // gradients that binary16 partly flushes and partly rounds as subnormals (the fixture says how)
+    const tide = parseSpec(readFileSync("test/fixtures/specs/tide-gauge.yaml", "utf8"), "tide-gauge.yaml");
     if (!tide.ok) throw new Error("the spec does not load");
     const report = simulate(tide.spec, { predict, draws: 1 });
     const text = renderSimulationText(report, { all: true });

@@ -4,6 +4,7 @@
  * is below the absolute tolerance: a conv input gradient with 1.6% of its nonzero elements flushed measured against
  * <0.1% predicted was reported as agreeing, while check's verdict on it would differ.
  */
+import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/index.js";
 import { buildGraph } from "../../src/graph/index.js";
@@ -39,20 +40,9 @@ describe("flushed shares on two sides of a verdict level", () => {
 });
 
 describe("a comparison row's shares of the nonzero elements flushed", () => {
-  // an invented tide-gauge smoother, its gradients held at a loss scale of 2^-16 so that binary16 (flush bound 2^-25,
-  // IEEE 754-2019 §3.6: emin −14, p = 11) flushes part of them; ReLU zeros half of the hidden values
-  const text = `name: tide-gauge
-input: { features: 64, scale: 1 }
-training: { batch: 32, loss: { kind: mean-squared-error } }
-precision: { name: half, activations: binary16, weights: binary16, gradients: binary16, accumulate: binary32, loss-scale: 1.52587890625e-5 }
-layers:
-  - { type: dense, width: 64, init: he-normal }
-  - relu
-  - { type: dense, width: 8, init: glorot-normal }
-`;
-
   it("divide the flushed share of all elements by the share that is not an exact zero, measured and predicted", () => {
-    const parsed = parseSpec(text, "tide-gauge.yaml");
+    // gradients that binary16 partly flushes, below a ReLU's exact zeros (the fixture says how)
+    const parsed = parseSpec(readFileSync("test/fixtures/specs/tide-gauge.yaml", "utf8"), "tide-gauge.yaml");
     if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
     const built = buildGraph(parsed.spec);
     if (!built.ok) throw new Error("does not build");
