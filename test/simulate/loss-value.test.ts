@@ -164,7 +164,7 @@ describe("simulate's page (--html) gives the scaled loss's shares as the text do
     const row = /<tr><td>loss\/loss \(accumulate\)<\/td><td>binary16<\/td>(.*?)<\/tr>/.exec(html);
     expect(row?.[1]).toMatch(/<td>100(\.0)?%<\/td>$/);
     // binary32 holds it (largest finite about 3.4e38, IEEE 754-2019 Table 3.5): the activation format's line shows none
-    expect(html).toMatch(/<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0<\/td>){3}<\/tr>/);
+    expect(html).toMatch(/<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0%<\/td>){3}<\/tr>/);
     expect(html).toMatch(/summed in the accumulate format, binary16, .*only an overflow of the sum \(which check says fails\) sets the exit code/);
   });
 
@@ -175,7 +175,7 @@ describe("simulate's page (--html) gives the scaled loss's shares as the text do
     const report = { result: runSimulation(spec(summed("binary32", "1")), { round: false }) };
     const html = renderSimulationHtml(report);
     // 64 · ln 10 ≈ 147 (common practice) is a normal binary32 value (IEEE 754-2019 Table 3.5): no share anywhere
-    expect(html).toMatch(/<table class="loss">.*\n<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0<\/td>){3}<\/tr><\/table>/);
+    expect(html).toMatch(/<table class="loss">.*\n<tr><td>loss\/loss<\/td><td>binary32<\/td>(<td>0%<\/td>){3}<\/tr><\/table>/);
     expect(html).not.toContain("loss/loss (accumulate)");
     expect(html).toContain("the shares are of the loss kept in the activation format, which is also the accumulate format it is summed in");
   });
