@@ -340,8 +340,8 @@ class Phase {
         signal = { ...signal };
         delete signal.featureCovariance;
       }
-      // the spread of two samples' cosines is followed through dense layers and activations only
-      if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && layer.family !== "dense" && layer.family !== "activation") {
+      // the spread of two samples' cosines is followed through dense layers, activations and residual sums only
+      if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && layer.family !== "dense" && layer.family !== "activation" && layer.family !== "residual") {
         signal = { ...signal };
         delete signal.correlationSquare;
         delete signal.sharedLogVar;

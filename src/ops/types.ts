@@ -64,7 +64,8 @@ export interface Signal {
   /**
    * E[c²] over pairs of samples, c = x_n·x_m/(‖x_n‖·‖x_m‖) the cosine of two samples' feature vectors (one position
    * per sample): shared/q is its mean, and a narrow random map's finite width spreads it (Fisher 1915), which the batch
-   * rms of a following linear map feels. Absent: unknown (set from the input, carried by dense layers and activations)
+   * rms of a following linear map feels. Absent: unknown (set from the input, carried by dense layers, activations and
+   * residual sums)
    */
   correlationSquare?: number;
   /**

@@ -150,6 +150,27 @@ function meanJacobianGain(ctx: OpContext, layer: GraphLayer, stashes: readonly u
   return mixes && Number.isFinite(gain) ? gain : undefined;
 }
 
+/**
+ * E[c²] of two samples' cosine at the sum x + α·F (Signal.correlationSquare), from its mean c̄ (the sum's shared/q): the
+ * two parts' spreads about their own means, weighed by their shares w of q, add at most as standard deviations do
+ * (Minkowski's inequality; F's cosine moves with x's), and the cross terms x_n·F_m, of mean zero over the branch's
+ * random last map, add 2·w_x·w_F/n (own algebra, as Fisher's 1/n for a random map's cosine)
+ */
+function sumCorrelationSquare(x: Signal, f: Signal, branchQ: number, mean: number, width: number): number {
+  const q = x.q + branchQ;
+  const wx = x.q / q;
+  const wf = branchQ / q;
+  const spread = wx * spreadOf(x) + wf * spreadOf(f);
+  return Math.min(Math.max(mean * mean + spread * spread + (2 * wx * wf) / width, 0), 1);
+}
+
+// the standard deviation of two samples' cosine about its mean shared/q
+function spreadOf(s: Signal): number {
+  if (!(s.q > 0)) return 0;
+  const c = sharedOf(s) / s.q;
+  return Math.sqrt(Math.max((s.correlationSquare ?? 0) - c * c, 0));
+}
+
 /** The gradient the branch starts from: α·δ_out, with its ledger factor (worded only with a ledger). */
 export function residualBranchSeed(layer: GraphLayer, output: Gradient, ledger: boolean, stash?: ResidualStash): { gradient: Gradient; factor: Factor } {
   const alpha = (layer.spec as ResidualLayer).multiplier;
@@ -209,6 +230,9 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     if (q > 0) output.positionCorrelation = Math.min((positionCorrelationOf(input) * input.q + positionCorrelationOf(f) * branchQ + 2 * alpha * input.mean * f.mean) / q, 1);
     const ratio = input.q > 0 ? q / input.q : 0;
     const width = layer.output.layout === "features" ? layer.output.features : 1;
+    if (q > 0 && input.correlationSquare !== undefined && f.correlationSquare !== undefined) {
+      output.correlationSquare = sumCorrelationSquare(input, f, branchQ, output.shared! / q, width);
+    }
     const meanJacobian = meanJacobianGain(ctx, layer, branch.branchStashes);
     // the loss's curvature, which the tangent's growth limits, exists at the start of the horizon only
     const tangent = ctx.phase === "start" && meanJacobian !== undefined ? blockTangent(ctx, layer, branch.branchStashes, input.q) : undefined;
