@@ -38,3 +38,30 @@ ${layers.replace(/^\n/, "")}  - flatten
   - { type: dense, name: head, width: 4 }
 `;
 }
+
+/**
+ * The spec of an invented regressor of width 64: a dense stem, 16 residual blocks of dense → `activation` → dense (LeCun
+ * initialisation at `gain`, branch multiplier `multiplier`), a dense head of `head` outputs, mean squared error, under
+ * {@link WIDE_PLAN}.
+ */
+export function residualStack(name: string, options: { gain: number; multiplier?: number; activation?: string; head?: number }): string {
+  const { gain, multiplier = 1, activation = "tanh", head = 4 } = options;
+  return `name: ${name}
+description: invented
+input: { features: 64 }
+training: { batch: 64, loss: { kind: mean-squared-error } }
+${WIDE_PLAN}layers:
+  - { type: dense, name: stem, width: 64 }
+  - type: repeat
+    name: trunk
+    times: 16
+    layers:
+      - type: residual
+        multiplier: ${multiplier}
+        branch:
+          - { type: dense, width: 64, init: { kind: lecun, gain: ${gain} } }
+          - ${activation}
+          - { type: dense, width: 64, init: { kind: lecun, gain: ${gain} } }
+  - { type: dense, name: head, width: ${head} }
+`;
+}

@@ -2,7 +2,7 @@ import { describe, expect, it } from "vitest";
 import { predict } from "../../src/magnitude/index.js";
 import { simulate } from "../../src/simulate/index.js";
 import { parseSpec } from "../../src/spec/index.js";
-import { WIDE_PLAN } from "../helpers/simulated.js";
+import { residualStack } from "../helpers/simulated.js";
 
 // A narrow head's batch rms spreads over draws of its weights by 2·D/width, D = 1/N + (1 − 1/N)·E[c²] with c two
 // samples' input cosine (moments of a Gaussian quadratic form), not by 2/width as for one sample. The cosine's E[c²] is
@@ -11,23 +11,7 @@ import { WIDE_PLAN } from "../helpers/simulated.js";
 // log-variance V = 2, its median draw e^(−V/4) below the mean, 0.6 binade under the measurement here, the spread 4×
 // too wide. Checked against the project's float64 simulation (src/simulate), 25 draws of weights and data.
 
-const spec = (head: number): string => `name: tide-level
-description: invented
-input: { features: 64 }
-training: { batch: 64, loss: { kind: mean-squared-error } }
-${WIDE_PLAN}layers:
-  - { type: dense, name: stem, width: 64 }
-  - type: repeat
-    name: trunk
-    times: 16
-    layers:
-      - type: residual
-        branch:
-          - { type: dense, width: 64, init: { kind: lecun, gain: 2 } }
-          - tanh
-          - { type: dense, width: 64, init: { kind: lecun, gain: 2 } }
-  - { type: dense, name: head, width: ${head} }
-`;
+const spec = (head: number): string => residualStack("tide-level", { gain: 2, head });
 
 describe("two samples' cosine through residual sums", () => {
   it("a width-1 head after 16 tanh blocks: its median rms within 0.15 binade of the draws' and its spread within ×1.5", () => {

@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
+import { measuredDifferences, residualStack } from "../helpers/simulated.js";
 
 // Below a residual sum the loss's curvature reads the block's input through the tangent x + α·J_F·x of the sum, whose
 // output is x + α·F(x). A saturating branch's J_F·x is small next to F (tanh: φ'(u)·u against φ(u)), so the tangent
@@ -9,24 +9,7 @@ import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
 // check is against the project's float64 simulation (src/simulate, median of 25 draws); the comments give the largest
 // difference before the rule.
 
-const stack = (name: string, gain: number, multiplier: number, activation = "tanh"): string => `name: ${name}
-description: invented
-input: { features: 64 }
-training: { batch: 64, loss: { kind: mean-squared-error } }
-${WIDE_PLAN}layers:
-  - { type: dense, name: stem, width: 64 }
-  - type: repeat
-    name: trunk
-    times: 16
-    layers:
-      - type: residual
-        multiplier: ${multiplier}
-        branch:
-          - { type: dense, width: 64, init: { kind: lecun, gain: ${gain} } }
-          - ${activation}
-          - { type: dense, width: 64, init: { kind: lecun, gain: ${gain} } }
-  - { type: dense, name: head, width: 4 }
-`;
+const stack = (name: string, gain: number, multiplier: number): string => residualStack(name, { gain, multiplier });
 
 // the deep gradients' scale varies by about 0.3 binade from draw to draw here: the median of 25 draws is within about
 // 0.08 of the distribution's (1.2533·σ/√n, the standard error of a sample median; common practice)

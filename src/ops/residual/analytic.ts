@@ -45,19 +45,29 @@ interface BlockTangent {
 }
 
 /**
- * {@link BlockTangent} layer by layer. The tangent τ is split into its part along the signal s and the rest,
- * τ = a·s + r with a = E[τ·s]/E[s²] (own algebra): a linear layer maps both alike; an activation passes a·φ'(u)·u
- * along (tangentMoments) and the rest as an independent perturbation (E[φ'²]); a norm, unchanged by a scale of its
- * input, passes only the rest (gain²/(var + ε)); dropout's mask scales both by 1/keep. Undefined for a branch with a
- * layer it cannot follow.
+ * A branch followed layer by layer, for two things (undefined for a branch with a layer it cannot follow):
+ * - the gain of its mean Jacobian J̄ = E[∂F/∂x], which Stein's lemma turns into the skip's covariance with the branch,
+ *   E[x·Fᵀ] = Cov(x)·J̄ᵀ (Stein 1981, Lemma 1, x Gaussian): a dense layer multiplies it by fan_in·var_w, an activation
+ *   by E[φ']², a layer or RMS norm by gain²/(var + ε), dropout by E[mask]/keep = 1; undefined also with no random linear
+ *   map (J̄'s entries would not be of mean zero);
+ * - with `withTangent` and J̄ known, {@link BlockTangent}: the tangent τ split into its part along the signal s and the
+ *   rest, τ = a·s + r with a = E[τ·s]/E[s²] (own algebra): a linear layer maps both alike; an activation passes
+ *   a·φ'(u)·u along (tangentMoments) and the rest as an independent perturbation (E[φ'²]); a norm, unchanged by a
+ *   scale of its input, passes only the rest (gain²/(var + ε)); dropout's mask scales both by 1/keep.
  */
-function blockTangent(ctx: OpContext, layer: GraphLayer, stashes: readonly unknown[] | undefined, q: number): BlockTangent | undefined {
+function followBranch(
+  ctx: OpContext,
+  layer: GraphLayer,
+  stashes: readonly unknown[] | undefined,
+  q: number,
+  withTangent: boolean,
+): { meanJacobian: number | undefined; tangent: BlockTangent | undefined } {
   const branch = layer.branch;
-  if (branch === undefined || stashes === undefined || stashes.length !== branch.length || !(q > 0)) return undefined;
-  let tangent = q;
-  let cross = q;
-  let signal = q;
-  let independent = 1;
+  if (branch === undefined || stashes === undefined || stashes.length !== branch.length || layer.output.layout !== "features") return NOT_FOLLOWED;
+  let gain = 1;
+  let mixes = false;
+  // the tangent's walk, dropped (null) at a layer it cannot follow
+  let t: BlockTangent | null = withTangent && q > 0 ? { tangent: q, cross: q, signal: q, independent: 1 } : null;
   for (let i = 0; i < branch.length; i++) {
     const b = branch[i] as GraphLayer;
     const stash = stashes[i];
@@ -65,90 +75,71 @@ function blockTangent(ctx: OpContext, layer: GraphLayer, stashes: readonly unkno
       case "dense": {
         const w = weightOf(b, "weight");
         const g = ctx.variance(w) * w.fanIn;
-        tangent *= g;
-        cross *= g;
-        signal *= g;
-        independent *= g;
+        gain *= g;
+        mixes = true;
+        if (t !== null) {
+          t.tangent *= g;
+          t.cross *= g;
+          t.signal *= g;
+          t.independent *= g;
+        }
         break;
       }
       case "activation": {
         const s = stash as ActivationStash;
+        gain *= s.derivativeMean ** 2;
         const name = (b.spec as ActivationLayer).activation;
-        if (name === "softmax" || !(signal > 0)) return undefined;
-        const a = cross / signal;
+        if (t === null) break;
+        if (name === "softmax" || !(t.signal > 0)) {
+          t = null;
+          break;
+        }
+        const a = t.cross / t.signal;
         const along = tangentMoments(name, s);
-        const rest = Math.max(tangent - a * a * signal, 0);
-        tangent = a * a * along.tangent + s.derivativeSecond * rest;
-        cross = a * along.cross;
-        signal = along.output;
-        independent *= s.derivativeSecond;
+        const rest = Math.max(t.tangent - a * a * t.signal, 0);
+        t.tangent = a * a * along.tangent + s.derivativeSecond * rest;
+        t.cross = a * along.cross;
+        t.signal = along.output;
+        t.independent *= s.derivativeSecond;
         break;
       }
       case "layer-norm":
       case "rms-norm": {
         const norm = stash as NormStash;
         const g = norm.denominator > 0 ? norm.gainSquared / norm.denominator : 0;
-        tangent = g * Math.max(tangent - (signal > 0 ? (cross * cross) / signal : 0), 0);
-        cross = 0;
-        signal = norm.gainSquared * norm.normalisedSecond;
-        independent *= g;
+        gain *= g;
+        if (t !== null) {
+          t.tangent = g * Math.max(t.tangent - (t.signal > 0 ? (t.cross * t.cross) / t.signal : 0), 0);
+          t.cross = 0;
+          t.signal = norm.gainSquared * norm.normalisedSecond;
+          t.independent *= g;
+        }
         break;
       }
       case "dropout": {
+        if (t === null) break;
         // the mask m/keep scales the tangent, the signal and a perturbation alike, each square by 1/keep
         const keep = 1 - (b.spec as DropoutLayer).rate;
-        if (!(keep > 0)) return undefined;
-        tangent /= keep;
-        cross /= keep;
-        signal /= keep;
-        independent /= keep;
+        if (!(keep > 0)) {
+          t = null;
+          break;
+        }
+        t.tangent /= keep;
+        t.cross /= keep;
+        t.signal /= keep;
+        t.independent /= keep;
         break;
       }
       default:
-        return undefined;
+        return NOT_FOLLOWED;
     }
   }
-  return Number.isFinite(tangent) && Number.isFinite(cross) && Number.isFinite(independent) ? { tangent, cross, signal, independent } : undefined;
+  const meanJacobian = mixes && Number.isFinite(gain) ? gain : undefined;
+  const followed = meanJacobian !== undefined && t !== null && Number.isFinite(t.tangent) && Number.isFinite(t.cross) && Number.isFinite(t.independent);
+  return { meanJacobian, tangent: followed ? (t as BlockTangent) : undefined };
 }
 
-/**
- * The gain of a branch's mean Jacobian J̄ = E[∂F/∂x], layer by layer, which Stein's lemma turns into the skip's
- * covariance with the branch, E[x·Fᵀ] = Cov(x)·J̄ᵀ (Stein 1981, Lemma 1, x Gaussian): a dense layer multiplies it by
- * fan_in·var_w, an activation by E[φ']², a layer or RMS norm by gain²/(var + ε), dropout by E[mask]/keep = 1. Undefined
- * for a branch with a layer it cannot follow, or with no random linear map (J̄'s entries would not be of mean zero).
- */
-function meanJacobianGain(ctx: OpContext, layer: GraphLayer, stashes: readonly unknown[] | undefined): number | undefined {
-  const branch = layer.branch;
-  if (branch === undefined || stashes === undefined || stashes.length !== branch.length || layer.output.layout !== "features") return undefined;
-  let gain = 1;
-  let mixes = false;
-  for (let i = 0; i < branch.length; i++) {
-    const b = branch[i] as GraphLayer;
-    const stash = stashes[i];
-    switch (b.family) {
-      case "dense": {
-        const w = weightOf(b, "weight");
-        gain *= ctx.variance(w) * w.fanIn;
-        mixes = true;
-        break;
-      }
-      case "activation":
-        gain *= (stash as ActivationStash).derivativeMean ** 2;
-        break;
-      case "layer-norm":
-      case "rms-norm": {
-        const norm = stash as NormStash;
-        gain *= norm.denominator > 0 ? norm.gainSquared / norm.denominator : 0;
-        break;
-      }
-      case "dropout":
-        break;
-      default:
-        return undefined;
-    }
-  }
-  return mixes && Number.isFinite(gain) ? gain : undefined;
-}
+const NOT_FOLLOWED = { meanJacobian: undefined, tangent: undefined } as const;
 
 /**
  * E[c²] of two samples' cosine at the sum x + α·F (Signal.correlationSquare), from its mean c̄ (the sum's shared/q): the
@@ -233,9 +224,8 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     if (q > 0 && input.correlationSquare !== undefined && f.correlationSquare !== undefined) {
       output.correlationSquare = sumCorrelationSquare(input, f, branchQ, output.shared! / q, width);
     }
-    const meanJacobian = meanJacobianGain(ctx, layer, branch.branchStashes);
     // the loss's curvature, which the tangent's growth limits, exists at the start of the horizon only
-    const tangent = ctx.phase === "start" && meanJacobian !== undefined ? blockTangent(ctx, layer, branch.branchStashes, input.q) : undefined;
+    const { meanJacobian, tangent } = followBranch(ctx, layer, branch.branchStashes, input.q, ctx.phase === "start");
     if (meanJacobian !== undefined && q > 0) {
       // Cov(y) = Cov(x) + α·(Cov(x)·J̄ᵀ + J̄·Cov(x)) + α²·Cov(F) (Stein's lemma, as above): the middle terms' entries, of
       // mean zero, add E[(Cov(x)·J̄ᵀ)_ij²] = q_x²·(1 + (n − 1)·c_x)·ḡ/n each (own algebra, J̄'s entries independent)
