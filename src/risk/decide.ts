@@ -12,13 +12,12 @@
  * not decide, is judged from its numbers as before (null from {@link decidedFindings}).
  */
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
-import { normalLogSf, normalSf, normalUpperQuantile } from "../numeric/normal.js";
+import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
-import { nonzeroElements } from "./laws.js";
-import { energyBelow, fractionBelow, probabilityAnyAbove, profileStatistics } from "./profile.js";
-import { settledAnyAbove } from "./settle.js";
-import { noiseAtMost, subnormalNoiseLimit } from "./subnormal-noise.js";
-import { overflowAtRiskThreshold, type TensorRiskOptions } from "./tensor.js";
+import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
+import { capWithin, farThreshold } from "./settle.js";
+import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
+import { overflowAtRiskThreshold, overflowRiskOf } from "./tensor.js";
 import { noFindings, overflowFinding } from "./tensor-finding.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
@@ -29,101 +28,133 @@ const DENSITY = Math.sqrt(2 / Math.PI);
 // within 1e-6 binade of its search (src/risk/laws.ts), and the search within a lattice step of the crossing
 const HEADROOM_MARGIN = 1 / 16;
 
-// The side being decided, its fields read once: a prediction's profiles come in many layouts (correlations, coherent
-// sums), and every read of a field is a look-up by layout. rms, S·ln 2, the nonzero element count (0: nothing to judge)
-// and the bound (0 when none).
-let sideRms = 0;
-let sideM = 0;
-let sideCount = 0;
-let sideBound = 0;
+/**
+ * One side of a tensor (its start or end profile after the loss-scale factor), its fields read once: a prediction's
+ * profiles come in many layouts (correlations, coherent sums), and every read of a field is a look-up by layout.
+ */
+class Side {
+  profile: MagnitudeProfile | null = null;
+  rms = 0;
+  /** S·ln 2, 0 without a spread */
+  m = 0;
+  /** the nonzero element count; 0: nothing to judge */
+  count = 0;
+  /** the bound, 0 when none */
+  bound = 0;
 
-// Reads a side's fields; false when its nonzero magnitudes may not follow the Gaussian law (a `bound` only caps them,
-// which lowers every share above it and none below it under the bound). An empty side is always read.
-function readSide(profile: MagnitudeProfile): boolean {
-  const rms = profile.rms;
-  const elements = profile.elements;
-  const zeroFraction = profile.zeroFraction;
-  const spread = profile.log2Spread;
-  const bound = profile.bound;
-  sideRms = rms;
-  sideCount = rms > 0 ? Math.max(0, elements * (1 - zeroFraction)) : 0;
-  sideM = spread > 0 ? spread * LN2 : 0;
-  sideBound = bound !== undefined && bound > 0 ? bound : 0;
-  if (!(sideCount > 0)) {
-    sideCount = 0;
-    return true;
+  /**
+   * Reads a side's fields; false when its nonzero magnitudes may not follow the Gaussian law (a `bound` only caps them,
+   * which lowers every share above it and none below it under the bound). An empty side is always read.
+   */
+  read(profile: MagnitudeProfile): boolean {
+    const rms = profile.rms;
+    const elements = profile.elements;
+    const zeroFraction = profile.zeroFraction;
+    const spread = profile.log2Spread;
+    const bound = profile.bound;
+    this.profile = profile;
+    this.rms = rms;
+    this.count = rms > 0 ? Math.max(0, elements * (1 - zeroFraction)) : 0;
+    this.m = spread > 0 ? spread * LN2 : 0;
+    this.bound = bound !== undefined && bound > 0 ? bound : 0;
+    if (!(this.count > 0)) {
+      this.count = 0;
+      return true;
+    }
+    const shape = profile.shape;
+    return shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
   }
-  const shape = profile.shape;
-  return shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
 }
 
 /**
- * Whether E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), is at most `target`: first by c·e^{m²/2} (the mean without the cap), else
- * exactly, Φ(z*) + c·e^{m²/2}·Q(z* + m) at z* = ln(c)/m (complete the square, as src/risk/settle.ts's capSettled).
+ * What every tensor's decision in one format shares: the range, the thresholds and the levels and far draws they set,
+ * worked out once (a check makes one per format it judges), and the two sides being decided.
  */
-export function capWithin(c: number, m: number, target: number): boolean {
-  if (!(c > 0)) return true;
-  if (!(m > 0)) return Math.min(1, c) <= target;
-  const free = c * Math.exp((m * m) / 2);
-  if (free <= target) return true;
-  const logC = Math.log(c);
-  const crossing = logC / m;
-  return normalSf(-crossing) + Math.exp(logC + (m * m) / 2 + normalLogSf(crossing + m)) <= target;
+export class FormatDecision {
+  readonly limits: RangeLimits;
+  readonly thresholds: RiskThresholds;
+  /** the subnormal noise's limit (subnormalNoiseLimit) */
+  readonly noiseLimit: number;
+  /** the overflow probability past which a tensor is at risk, and the lower of it and the failing one */
+  readonly atRisk: number;
+  readonly finding: number;
+  /** the lower of each share's two thresholds */
+  readonly flushed: number;
+  readonly energy: number;
+  /** the overflow bound's draw z₀ (where Q(z₀) is a quarter of `finding`) and Q(z₀) */
+  readonly overflowDraw: number;
+  readonly overflowFar: number;
+  /** the level the headroom's bound is taken at, and its draw and Q at half of maxQuantile */
+  readonly headroomLevel: number;
+  readonly headroomDraw: number;
+  readonly headroomFar: number;
+  readonly start = new Side();
+  readonly end = new Side();
+
+  constructor(limits: RangeLimits, thresholds: RiskThresholds) {
+    const t = thresholds;
+    this.limits = limits;
+    this.thresholds = t;
+    this.noiseLimit = subnormalNoiseLimit(limits, t.subnormalNoiseAtRisk);
+    this.atRisk = overflowAtRiskThreshold(t, false);
+    // a probability or share past either threshold is a finding (grade: failing first), whichever is the lower
+    this.finding = Math.min(this.atRisk, t.overflowFails);
+    this.flushed = Math.min(t.flushedAtRisk, t.flushedFails);
+    this.energy = Math.min(t.energyAtRisk, t.energyFails);
+    // z₀ taken where Q(z₀) is about half the bound's target (half the finding's threshold)
+    this.overflowDraw = normalUpperQuantile(this.finding / 4);
+    this.overflowFar = normalSf(this.overflowDraw);
+    this.headroomLevel = limits.maxFinite * 2 ** -(t.headroomAtRisk + HEADROOM_MARGIN);
+    this.headroomDraw = normalUpperQuantile(t.maxQuantile / 4);
+    this.headroomFar = normalSf(this.headroomDraw);
+  }
 }
 
 /**
- * Whether no finding of the shares below the flush bound can come from the read side: the share of elements flushed at
- * most its at-risk threshold, a gradient's flushed energy too, and the subnormal noise at most its limit. Each by its
- * bound at half the threshold, else by the number itself: a side's reported share is that call's value or 0 (settledRisk).
+ * Whether no finding of the shares below the flush bound can come from the side: the share of elements flushed at most
+ * its at-risk threshold, a gradient's flushed energy too, and the subnormal noise at most its limit. Each by its bound
+ * at half the threshold, else by the number itself: a side's reported share is that call's value or 0 (settledRisk).
  */
-function belowDecided(profile: MagnitudeProfile, limits: RangeLimits, t: RiskThresholds, gradient: boolean, noiseLimit: number): boolean {
-  if (sideCount === 0) return true;
+function belowDecided(side: Side, d: FormatDecision, gradient: boolean): boolean {
+  if (side.count === 0) return true;
+  const profile = side.profile as MagnitudeProfile;
+  const limits = d.limits;
   const flushBound = limits.flushBound;
   // at or past a bound the Gaussian's share is not the law's: judged from the numbers
-  if (sideBound > 0 && !(flushBound < sideBound)) return false;
-  const a = flushBound / sideRms;
-  // a share past either threshold is a finding (grade: failing first), whichever is the lower
-  const flushed = Math.min(t.flushedAtRisk, t.flushedFails);
-  if (!capWithin(DENSITY * a, sideM, flushed / 2) && !(fractionBelow(profile, flushBound) <= flushed)) return false;
-  const energy = Math.min(t.energyAtRisk, t.energyFails);
-  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * sideM, energy / 2) && !(energyBelow(profile, flushBound) <= energy)) return false;
-  return noiseAtMost(profile, limits, noiseLimit);
+  if (side.bound > 0 && !(flushBound < side.bound)) return false;
+  const a = flushBound / side.rms;
+  if (!capWithin(DENSITY * a, side.m, d.flushed / 2) && !(fractionBelow(profile, flushBound) <= d.flushed)) return false;
+  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2) && !(energyBelow(profile, flushBound) <= d.energy)) return false;
+  // the noise by its bound at half the limit (the noise is computed within 2e-7 of its integral's shares), else itself
+  return gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2) || subnormalNoise(profile, limits) <= d.noiseLimit;
 }
 
-/**
- * Whether the probability that some of the read side's nonzero elements reach t in a step, over draws, is at most
- * `target`: the integrand rises with the draw, so it is at most Q(z₀) + n·P(|Z| ≥ u₀), u₀ = t/(rms·2^{S·z₀}), and
- * P(|Z| ≥ u) ≤ e^{−u²/2} (Chernoff); z₀ is taken where Q(z₀) is about half the target.
- */
-function anyAboveWithin(t: number, target: number): boolean {
-  if (sideCount === 0) return true;
+// Whether the probability that some of the side's nonzero elements reach t in a step, over draws, is at most `target`,
+// by the bound at draw z₀ with Q(z₀) = far (settle.ts's farThreshold)
+function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: number): boolean {
+  if (side.count === 0) return true;
   if (!(t > 0)) return false;
-  // a check asks for two targets, tensor after tensor (the overflow's and the headroom's): one slot each
-  let at = target === FAR[0] ? 0 : target === FAR[3] ? 3 : -1;
-  if (at < 0) {
-    // the older slot takes the new target
-    at = FAR_NEXT[0] as number;
-    FAR_NEXT[0] = 3 - at;
-    FAR[at] = target;
-    FAR[at + 1] = normalUpperQuantile(target / 2);
-    FAR[at + 2] = normalSf(FAR[at + 1] as number);
-  }
-  const u = (t / sideRms) * Math.exp(-sideM * (FAR[at + 1] as number));
-  return (FAR[at + 2] as number) + sideCount * Math.exp(-(u * u) / 2) <= target;
+  const u = farThreshold(t / side.rms, side.m, z0);
+  return far + side.count * Math.exp(-(u * u) / 2) <= target;
 }
-// two slots of anyAboveWithin's targets: the target, its draw z₀ and Q(z₀)
-const FAR = new Float64Array(6).fill(Number.NaN);
-const FAR_NEXT = new Int32Array(1);
 
 /**
- * Whether the read side keeps at least the headroom asked for: its predicted max (the level passed with probability
+ * Whether the side keeps at least the headroom asked for: its predicted max (the level passed with probability
  * maxQuantile per step) is below maxFinite·2^−headroomAtRisk when the probability of passing a level 1/16 binade under
  * that is at most half of maxQuantile; else by the max itself, as settledRisk takes it.
  */
-function headroomDecided(profile: MagnitudeProfile, limits: RangeLimits, t: RiskThresholds): boolean {
-  if (sideCount === 0) return true;
-  if (anyAboveWithin(limits.maxFinite * 2 ** -(t.headroomAtRisk + HEADROOM_MARGIN), t.maxQuantile / 2)) return true;
-  return Math.log2(limits.maxFinite / profileStatistics(profile, t).max) >= t.headroomAtRisk;
+function headroomDecided(side: Side, d: FormatDecision): boolean {
+  if (side.count === 0) return true;
+  const t = d.thresholds;
+  if (anyAboveWithin(side, d.headroomLevel, t.maxQuantile / 2, d.headroomDraw, d.headroomFar)) return true;
+  return Math.log2(d.limits.maxFinite / profileStatistics(side.profile as MagnitudeProfile, t).max) >= t.headroomAtRisk;
+}
+
+// The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
+// as settledRisk gives it (the same call)
+function overflowDecided(side: Side, d: FormatDecision): number {
+  if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar)) return -1;
+  return side.count === 0 ? 0 : overflowRiskOf(side.profile as MagnitudeProfile, d.limits);
 }
 
 /**
@@ -131,50 +162,35 @@ function headroomDecided(profile: MagnitudeProfile, limits: RangeLimits, t: Risk
  * decided from bounds and the numbers past their bounds; null where that does not decide them (the tensor is then judged
  * from its numbers). `start` and `end` are the profiles after the loss-scale factor; `same` when they are one
  * distribution. For a format that holds the tensor, without scale factors, and a tensor that is not a probability row
- * (the caller's conditions).
+ * (the caller's conditions); `decision` is the format's, made once for every tensor the format judges.
  */
 export function decidedFindings(
   tensor: TensorPrediction,
   start: MagnitudeProfile,
   end: MagnitudeProfile,
   same: boolean,
-  limits: RangeLimits,
-  options: TensorRiskOptions,
+  decision: FormatDecision,
 ): Finding[] | null {
-  const t = options.thresholds;
+  const d = decision;
   const role = tensor.role;
   const gradient = role === "activation-gradient" || role === "weight-gradient";
-  const noiseLimit = subnormalNoiseLimit(limits, t.subnormalNoiseAtRisk);
-  const atRisk = overflowAtRiskThreshold(t, false);
-  // a probability past either threshold is a finding (grade: failing first)
-  const finding = Math.min(atRisk, t.overflowFails);
-  const level = limits.overflowLevel;
-  // per side: −1 when the overflow probability is at most half the lower threshold (not worked out), else its value as
-  // settledRisk gives it (the same calls); the fields left read for the headroom below are the end's
-  if (!readSide(start) || !belowDecided(start, limits, t, gradient, noiseLimit)) return null;
-  const startRisk = anyAboveWithin(level, finding / 2) ? -1 : overflowOf(start, limits);
-  let endRisk = startRisk;
-  if (!same) {
-    if (!readSide(end) || !belowDecided(end, limits, t, gradient, noiseLimit)) return null;
-    endRisk = anyAboveWithin(level, finding / 2) ? -1 : overflowOf(end, limits);
-  }
+  const first = d.start;
+  const last = same ? first : d.end;
+  if (!first.read(start) || !belowDecided(first, d, gradient)) return null;
+  if (!same && (!last.read(end) || !belowDecided(last, d, gradient))) return null;
+  const startRisk = overflowDecided(first, d);
+  const endRisk = same ? startRisk : overflowDecided(last, d);
   const worst = Math.max(startRisk, endRisk);
-  if (!(worst > finding)) {
-    // no overflow finding: the headroom's, unless both sides keep the headroom asked for (the end's fields are read)
-    if (!headroomDecided(end, limits, t)) return null;
-    if (!same && !(readSide(start) && headroomDecided(start, limits, t))) return null;
+  const t = d.thresholds;
+  if (!(worst > d.finding)) {
+    // no overflow finding: the headroom's, unless both sides keep the headroom asked for
+    if (!headroomDecided(last, d)) return null;
+    if (!same && !headroomDecided(first, d)) return null;
     return noFindings();
   }
   // a tie is told apart by the headroom (worseOf): judged from the numbers
   if (startRisk === endRisk && !same) return null;
   const severity: Exclude<Verdict, "fits"> = worst > t.overflowFails ? "fails" : "at-risk";
   const at = endRisk > startRisk ? "end" : "start";
-  return overflowFinding(tensor.id, limits, severity, worst, severity === "fails" ? t.overflowFails : atRisk, at);
-}
-
-// the overflow probability of one side as settledRisk (src/risk/tensor.ts) gives it: the same calls, so the same value
-function overflowOf(profile: MagnitudeProfile, limits: RangeLimits): number {
-  if (sideCount === 0) return 0;
-  const settled = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
-  return settled >= 0 ? settled : probabilityAnyAbove(profile, limits.overflowLevel);
+  return overflowFinding(tensor.id, d.limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
 }

@@ -37,7 +37,7 @@ import {
   type TensorRiskOptions,
   type TensorStatistics,
 } from "./tensor.js";
-import { decidedFindings } from "./decide.js";
+import { decidedFindings, FormatDecision } from "./decide.js";
 import { noFindings } from "./tensor-finding.js";
 import { CheckedRisk, CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -468,6 +468,8 @@ interface FormatSetting {
   /** the risk options of a tensor the format holds, and of one it does not hold (reported with `everyFormat`) */
   held: TensorRiskOptions;
   notHeld: TensorRiskOptions;
+  /** what deciding a held tensor's findings by bounds reads, worked out once for the format (src/risk/decide.ts) */
+  decision: FormatDecision;
   /** index of the first setting judged under the same plan: one hazard evaluation serves both */
   contextIndex: number;
   /** the loss scale its gradients are judged at (settings under the same plan share one) */
@@ -492,12 +494,14 @@ function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thr
         break;
       }
     }
+    const limits = limitsFor(evaluated, format);
     settings.push({
       format,
       evaluated,
-      limits: limitsFor(evaluated, format),
+      limits,
       held: { judged: true, perTensorScaling, blockScaling, thresholds },
       notHeld: { judged: false, perTensorScaling, blockScaling, thresholds },
+      decision: new FormatDecision(limits, thresholds),
       contextIndex,
       lossScale: 1,
       findings: [],
@@ -632,7 +636,7 @@ function judgeTensor(
         else if (bounded) {
           start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
           end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
-          findings = decidedFindings(tensor, start, end, same, setting.limits, options);
+          findings = decidedFindings(tensor, start, end, same, setting.decision);
         }
       }
       risk =

@@ -41,20 +41,50 @@ function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
   return bound === undefined || !(bound > 0) || t < bound;
 }
 
-// Whether E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), m ≥ 0, c ≥ 0, is below SETTLED: with z* = ln(c)/m the point where
-// c·e^{−m·z} = 1, it is Φ(z*) + c·e^{m²/2}·Q(z* + m) (complete the square: e^{−m·z}·φ(z) = e^{m²/2}·φ(z + m)), and
-// not settled at once where the first term alone is above SETTLED. Without a spread, min(1, c). (A boolean: a double
-// returned from a call is a heap number the collector has to take back, at every tensor.)
+/**
+ * E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), for c > 0 and m > 0 given as ln c: with z* = ln(c)/m the point where
+ * c·e^{−m·z} = 1, it is Φ(z*) + c·e^{m²/2}·Q(z* + m) (complete the square: e^{−m·z}·φ(z) = e^{m²/2}·φ(z + m)). The
+ * closed form of the shares' bounds here and in src/risk/decide.ts.
+ */
+export function capMean(logC: number, m: number): number {
+  const crossing = logC / m;
+  return normalSf(-crossing) + Math.exp(logC + (m * m) / 2 + normalLogSf(crossing + m));
+}
+
+// Whether E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), m ≥ 0, c ≥ 0, is below SETTLED ({@link capMean}), not settled at once
+// where its first term alone, Φ(z*), is above SETTLED. Without a spread, min(1, c). (A boolean: a double returned from
+// a call is a heap number the collector has to take back, at every tensor.)
 function capSettled(c: number, m: number): boolean {
   if (!(c > 0)) return true;
   if (!(m > 0)) return c < SETTLED;
   const logC = Math.log(c);
   const crossing = logC / m;
   if (crossing > -FAR_DRAW) return false;
-  const logSecond = logC + (m * m) / 2;
   // where z* + m ≤ 0 the second term is at least half of c·e^{m²/2}: refused without the tails
-  if (crossing + m <= 0 && logSecond - LN2 >= LOG_SETTLED) return false;
-  return normalSf(-crossing) + Math.exp(logSecond + normalLogSf(crossing + m)) < SETTLED;
+  if (crossing + m <= 0 && logC + (m * m) / 2 - LN2 >= LOG_SETTLED) return false;
+  return capMean(logC, m) < SETTLED;
+}
+
+/**
+ * Whether E_z[min(1, c·e^{−m·z})], z ~ N(0, 1), is at most `target`: first by c·e^{m²/2} (the mean without the cap),
+ * else by {@link capMean}. Without a spread, min(1, c).
+ */
+export function capWithin(c: number, m: number, target: number): boolean {
+  if (!(c > 0)) return true;
+  if (!(m > 0)) return Math.min(1, c) <= target;
+  const free = c * Math.exp((m * m) / 2);
+  if (free <= target) return true;
+  return capMean(Math.log(c), m) <= target;
+}
+
+/**
+ * The threshold t in units of the scale drawn at z₀, u₀ = (t/rms)·e^{−m·z₀} (m = S·ln 2; `a` is t/rms): the probability
+ * that some of n nonzero elements reach t in a step, over draws, is at most Q(z₀) + n·e^{−u₀²/2}, as the integrand rises
+ * with the draw and P(|Z| ≥ u) ≤ e^{−u²/2} (Chernoff). The bound {@link settledAnyAbove} takes at a far draw, and
+ * src/risk/decide.ts at the draw its target sets.
+ */
+export function farThreshold(a: number, m: number, z0: number): number {
+  return a * Math.exp(-m * z0);
 }
 
 /**
@@ -94,7 +124,7 @@ export function settledAnyAbove(profile: MagnitudeProfile, t: number, n: number)
   const far = spread * LN2 * FAR_DRAW;
   const logN = Math.log(n);
   // highest draw: the threshold's distance from the largest scale that matters
-  const high = a * Math.exp(-far);
+  const high = farThreshold(a, spread * LN2, FAR_DRAW);
   if (logN - (high * high) / 2 < LOG_FAR_SHARE) return 0;
   // lowest draw: even the smallest scale that matters passes t somewhere in the tensor, with near certainty
   const low = a * Math.exp(far);

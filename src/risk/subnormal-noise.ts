@@ -104,14 +104,26 @@ export function noiseWithin(profile: MagnitudeProfile, limits: Pick<RangeLimits,
   if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return true;
   const shape = profile.shape;
   if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return noiseBound(profile, limits) <= target;
+  const spread = profile.log2Spread;
+  return gaussianNoiseWithin(profile.rms, spread > 0 ? spread * LN2 : 0, profile.bound ?? 0, limits, target);
+}
+
+/**
+ * {@link noiseWithin} of a Gaussian magnitude law with nonzero elements, from its numbers: the rms, m = S·ln 2 (0
+ * without a spread) and the bound (0 for none), for a caller that has read them.
+ */
+export function gaussianNoiseWithin(
+  rms: number,
+  m: number,
+  bound: number,
+  limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">,
+  target: number,
+): boolean {
+  if (!(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return true;
   const h = limits.minNormal;
   // a bound under the smallest normal puts mass at the bound, inside the band: no density there
-  const bound = profile.bound;
-  if (bound !== undefined && bound > 0 && bound < h) return false;
-  const rms = profile.rms;
+  if (bound > 0 && bound < h) return false;
   const delta = limits.smallest;
-  const spread = profile.log2Spread;
-  const m = spread > 0 ? spread * LN2 : 0;
   const scale = (delta * delta) / (12 * rms * rms);
   const k = (GAUSSIAN_DENSITY * h) / rms;
   if (!(m > 0)) return scale * Math.min(1, k) <= target;

@@ -358,8 +358,7 @@ function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: Prof
   // the flushed elements are the smallest, so their share of the squared norm is at most their share of the elements
   let flushedEnergy = settled ? 0 : settledEnergyBelow(profile, flushBound);
   if (flushedEnergy < 0) flushedEnergy = energyBelow(profile, flushBound);
-  let overflowRisk = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
-  if (overflowRisk < 0) overflowRisk = probabilityAnyAbove(profile, limits.overflowLevel);
+  const overflowRisk = overflowRiskOf(profile, limits);
   const subnormalFraction = Math.max(0, belowNormal - flushedFraction);
   return {
     flushedFraction,
@@ -370,6 +369,15 @@ function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: Prof
     headroom: Math.log2(limits.maxFinite / stats.max),
     footroom: Math.log2(stats.low / limits.smallest),
   };
+}
+
+/**
+ * The overflow probability of a profile with nonzero elements as {@link settledRisk} reports it: settled by a bound
+ * where one decides it (src/risk/settle.ts), else integrated.
+ */
+export function overflowRiskOf(profile: MagnitudeProfile, limits: RangeLimits): number {
+  const settled = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
+  return settled >= 0 ? settled : probabilityAnyAbove(profile, limits.overflowLevel);
 }
 
 function minOrNull(a: number | null, b: number | null): number | null {

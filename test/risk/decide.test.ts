@@ -2,7 +2,8 @@ import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../../src/magnitude/types.js";
 import { erfc, normalPdf } from "../../src/numeric/normal.js";
-import { capWithin, decidedFindings } from "../../src/risk/decide.js";
+import { decidedFindings, FormatDecision } from "../../src/risk/decide.js";
+import { capWithin } from "../../src/risk/settle.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { judgePrediction, limitsFor, planFor } from "../../src/risk/judge.js";
 import { noiseAtMost, noiseWithin, subnormalNoise } from "../../src/risk/subnormal-noise.js";
@@ -90,7 +91,7 @@ describe("findings decided by bounds", () => {
       fc.property(tensors, fc.constantFrom(BINARY16, BFLOAT16_FTZ, BINARY32, E5M2, E4M3_SATURATING), thresholds, (tensor, limits, t) => {
         const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: t };
         const same = tensor.start === tensor.end;
-        const found = decidedFindings(tensor, tensor.start, tensor.end, same, limits, options);
+        const found = decidedFindings(tensor, tensor.start, tensor.end, same, new FormatDecision(limits, t));
         if (found === null) {
           undecided++;
           return;
@@ -131,7 +132,7 @@ describe("findings decided by bounds", () => {
             headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
           };
           const options: TensorRiskOptions = { ...base, thresholds: t };
-          const found = decidedFindings(tensor, tensor.start, tensor.end, tensor.start === tensor.end, limits, options);
+          const found = decidedFindings(tensor, tensor.start, tensor.end, tensor.start === tensor.end, new FormatDecision(limits, t));
           if (found === null) return;
           decided++;
           expect(found).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options).findings);
@@ -160,7 +161,7 @@ describe("findings decided by bounds", () => {
           const tensor = { id: "dense-1/activation", layer: "dense-1", role: "activation", start, end: start } as unknown as TensorPrediction;
           const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: t };
           const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options);
-          const found = decidedFindings(tensor, start, start, true, limits, options);
+          const found = decidedFindings(tensor, start, start, true, new FormatDecision(limits, t));
           if (found === null) left++;
           else {
             expect(found).toEqual(full.findings);
@@ -181,14 +182,14 @@ describe("findings decided by bounds", () => {
     const tie = { id: "a/activation", role: "activation", start: hot, end: { ...hot, elements: 8192 } } as unknown as TensorPrediction;
     // both ends overflow with probability 1: which end is worse goes by the headroom
     expect(tensorFormatRisk(tie, BINARY16, tensorStatistics(tie, 1, DEFAULT_THRESHOLDS), options).findings[0]?.value).toBe(1);
-    expect(decidedFindings(tie, tie.start, tie.end, false, BINARY16, options)).toBeNull();
+    expect(decidedFindings(tie, tie.start, tie.end, false, new FormatDecision(BINARY16, DEFAULT_THRESHOLDS))).toBeNull();
     const uniform = { ...hot, rms: 1, shape: "uniform" as const };
     const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
-    expect(decidedFindings(other, uniform, uniform, true, BINARY16, options)).toBeNull();
+    expect(decidedFindings(other, uniform, uniform, true, new FormatDecision(BINARY16, DEFAULT_THRESHOLDS))).toBeNull();
     // and decide a Gaussian one far inside every limit, with no finding
     const calm = { ...hot, rms: 1 };
     const fits = { id: "a/activation", role: "activation", start: calm, end: calm } as unknown as TensorPrediction;
-    expect(decidedFindings(fits, calm, calm, true, BINARY16, options)).toEqual([]);
+    expect(decidedFindings(fits, calm, calm, true, new FormatDecision(BINARY16, DEFAULT_THRESHOLDS))).toEqual([]);
   });
 });
 
