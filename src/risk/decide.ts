@@ -90,6 +90,12 @@ export class FormatDecision {
   readonly headroomFar: number;
   readonly start = new Side();
   readonly end = new Side();
+  /**
+   * After {@link decidedFindings} decided a tensor, each side's overflow probability where it was worked out (−1 where
+   * its bound decided it): the values the tensor's numbers report, read later (src/risk/tensor-check.ts)
+   */
+  startOverflow = -1;
+  endOverflow = -1;
 
   constructor(limits: RangeLimits, thresholds: RiskThresholds) {
     const t = thresholds;
@@ -180,6 +186,8 @@ export function decidedFindings(
   if (!same && (!last.read(end) || !belowDecided(last, d, gradient))) return null;
   const startRisk = overflowDecided(first, d);
   const endRisk = same ? startRisk : overflowDecided(last, d);
+  d.startOverflow = startRisk;
+  d.endOverflow = endRisk;
   const worst = Math.max(startRisk, endRisk);
   const t = d.thresholds;
   if (!(worst > d.finding)) {

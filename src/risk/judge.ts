@@ -631,17 +631,23 @@ function judgeTensor(
     let risk: TensorCheckRisk;
     if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === factor) {
       let findings: Finding[] | null = null;
+      // the overflow probabilities deciding the findings worked out (−1: none), which the numbers then report
+      let startOverflow = -1;
+      let endOverflow = -1;
       if (!options.perTensorScaling) {
         if (!judged) findings = noFindings();
         else if (bounded) {
           start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
           end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
-          findings = decidedFindings(tensor, start, end, same, setting.decision);
+          const decision = setting.decision;
+          findings = decidedFindings(tensor, start, end, same, decision);
+          startOverflow = decision.startOverflow;
+          endOverflow = decision.endOverflow;
         }
       }
       risk =
         findings !== null
-          ? new CheckedRisk(judged, worstVerdict(findings), findings, checked, setting.limits, options)
+          ? new CheckedRisk(judged, worstVerdict(findings), findings, checked, setting.limits, options, startOverflow, endOverflow)
           : scaledTensorRisk(tensor, (scaled ??= CheckedTensor.scaled(checked)), setting.limits, options);
     } else {
       if (other === undefined || other.statistics.factor !== setting.lossScale) {

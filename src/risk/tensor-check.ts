@@ -125,12 +125,29 @@ export class CheckedRisk implements TensorCheckRisk {
   #tensor: CheckedTensor;
   #limits: RangeLimits;
   #options: TensorRiskOptions;
+  #startOverflow: number;
+  #endOverflow: number;
   #numbers: TensorRiskNumbers | undefined;
 
-  constructor(judged: boolean, verdict: Verdict, findings: Finding[], tensor: CheckedTensor, limits: RangeLimits, options: TensorRiskOptions) {
+  /**
+   * `startOverflow`, `endOverflow`: each side's overflow probability where deciding the findings worked it out (the
+   * value its numbers report), else −1.
+   */
+  constructor(
+    judged: boolean,
+    verdict: Verdict,
+    findings: Finding[],
+    tensor: CheckedTensor,
+    limits: RangeLimits,
+    options: TensorRiskOptions,
+    startOverflow: number,
+    endOverflow: number,
+  ) {
     this.#tensor = tensor;
     this.#limits = limits;
     this.#options = options;
+    this.#startOverflow = startOverflow;
+    this.#endOverflow = endOverflow;
     this.#numbers = undefined;
     this.format = limits.format;
     this.judged = judged;
@@ -144,7 +161,7 @@ export class CheckedRisk implements TensorCheckRisk {
 
   /** The risk's numbers (worked out once). */
   static numbers(risk: CheckedRisk): TensorRiskNumbers {
-    return (risk.#numbers ??= scaledTensorNumbers(CheckedTensor.scaled(risk.#tensor), risk.#limits, risk.#options));
+    return (risk.#numbers ??= scaledTensorNumbers(CheckedTensor.scaled(risk.#tensor), risk.#limits, risk.#options, risk.#startOverflow, risk.#endOverflow));
   }
 }
 

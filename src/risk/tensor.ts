@@ -206,12 +206,16 @@ export interface TensorRiskNumbers {
   worst: WorstRisk;
 }
 
-/** The numbers of {@link scaledTensorRisk}, without its findings (what a tensor's risk read later works out). */
-export function scaledTensorNumbers(scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions): TensorRiskNumbers {
+/**
+ * The numbers of {@link scaledTensorRisk}, without its findings (what a tensor's risk read later works out).
+ * `startOverflow` and `endOverflow`: each side's overflow probability when already worked out (by
+ * {@link overflowRiskOf}, as src/risk/decide.ts does for a finding), else −1; without per-tensor scale factors only.
+ */
+export function scaledTensorNumbers(scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions, startOverflow = -1, endOverflow = -1): TensorRiskNumbers {
   const { statistics } = scaled;
-  const start = evaluate(scaled.start, statistics.start, statistics.arrayMax?.start ?? statistics.start.max, limits, options);
+  const start = evaluate(scaled.start, statistics.start, statistics.arrayMax?.start ?? statistics.start.max, limits, options, startOverflow);
   const startScaleLog2 = evaluatedScaleLog2;
-  const end = scaled.same && statistics.arrayMax?.start === statistics.arrayMax?.end ? start : evaluate(scaled.end, statistics.end, statistics.arrayMax?.end ?? statistics.end.max, limits, options);
+  const end = scaled.same && statistics.arrayMax?.start === statistics.arrayMax?.end ? start : evaluate(scaled.end, statistics.end, statistics.arrayMax?.end ?? statistics.end.max, limits, options, endOverflow);
   const endScaleLog2 = evaluatedScaleLog2;
   return { scaleLog2: { start: startScaleLog2, end: endScaleLog2 }, start, end, worst: worseOf(start, end) };
 }
@@ -289,10 +293,11 @@ function evaluate(
   arrayMax: number,
   limits: RangeLimits,
   options: TensorRiskOptions,
+  overflow: number,
 ): TensorProfileRisk {
   if (!options.perTensorScaling) {
     evaluatedScaleLog2 = 0;
-    return settledRisk(scaled, limits, stats);
+    return settledRisk(scaled, limits, stats, overflow);
   }
   // the conversion scales the whole stored array by one factor, set from its largest elements
   const scaleLog2 = perTensorScaleLog2(arrayMax, limits.maxFinite);
@@ -300,7 +305,7 @@ function evaluate(
   // scaling is linear, so the statistics scale with it
   const rescaled: ProfileStatistics = { rms: stats.rms * factor, max: stats.max * factor, low: stats.low * factor };
   const stored = riskProfile(scaled, factor);
-  const risk = settledRisk(stored, limits, rescaled);
+  const risk = settledRisk(stored, limits, rescaled, -1);
   evaluatedScaleLog2 = scaleLog2;
   const block = options.blockScaling;
   // the subnormal noise under the per-tensor scale also where blocks take their own (as the subnormal share is): a block's
@@ -342,9 +347,10 @@ function withNoise(risk: ProfileRisk, stored: MagnitudeProfile, limits: RangeLim
 /**
  * {@link profileRisk} with its subnormal noise ({@link withNoise}), each share and probability settled by a cheap bound
  * where one decides it (src/risk/settle.ts: 0 under SETTLED, an overflow probability of 1 within SETTLED), so that only
- * the numbers near a format's limits are integrated.
+ * the numbers near a format's limits are integrated. `overflow`: the overflow probability when already worked out by
+ * {@link overflowRiskOf}, else −1.
  */
-function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: ProfileStatistics): TensorProfileRisk {
+function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: ProfileStatistics, overflow: number): TensorProfileRisk {
   if (isEmpty(profile)) return withNoise(profileRisk(profile, limits, stats), profile, limits, false);
   const flushBound = limits.flushBound;
   // the larger threshold first: a share settled there is settled at the flush bound too
@@ -358,7 +364,8 @@ function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: Prof
   // the flushed elements are the smallest, so their share of the squared norm is at most their share of the elements
   let flushedEnergy = settled ? 0 : settledEnergyBelow(profile, flushBound);
   if (flushedEnergy < 0) flushedEnergy = energyBelow(profile, flushBound);
-  const overflowRisk = overflowRiskOf(profile, limits);
+  // an overflow probability already worked out (−1: not) is that call's value
+  const overflowRisk = overflow >= 0 ? overflow : overflowRiskOf(profile, limits);
   const subnormalFraction = Math.max(0, belowNormal - flushedFraction);
   return {
     flushedFraction,
