@@ -286,9 +286,9 @@ describe("a result whose numbers are worked out when first read", () => {
   const options = { lossScale: 2 ** 10, everyFormat: true, formats: ["binary16", "bfloat16", "binary32"] as const };
 
   // every tensor's statistics and risks as tensorStatistics and tensorFormatRisk give them at once (the definition)
-  function eager(): unknown[] {
+  function eager(lossScale = 2 ** 10): unknown[] {
     return prediction.tensors.map((t) => {
-      const statistics = tensorStatistics(t, 2 ** 10, DEFAULT_THRESHOLDS);
+      const statistics = tensorStatistics(t, lossScale, DEFAULT_THRESHOLDS);
       return {
         statistics,
         risks: options.formats.map((format) => {
@@ -311,6 +311,16 @@ describe("a result whose numbers are worked out when first read", () => {
     for (const t of second.tensors) void t.statistics.end.max;
     expect(JSON.stringify(second.tensors.map((t) => ({ statistics: t.statistics, risks: t.risks })))).toBe(expected);
     expect(JSON.stringify(judgePrediction(spec, prediction, { ...options, formats: [...options.formats] }))).toBe(JSON.stringify(first));
+  });
+
+  it("reports the overflow probabilities its findings were decided with as the definition gives them", () => {
+    // at 2^20 the gradients overflow binary16 with probabilities between 0 and 1: integrated while the findings are
+    // decided, and those values are the ones the numbers report
+    const scaled = { ...options, lossScale: 2 ** 20, formats: [...options.formats] };
+    const result = judgePrediction(spec, prediction, scaled);
+    const integrated = result.tensors.flatMap((t) => t.risks).filter((r) => r.findings.some((f) => f.kind === "overflow" && f.value > 1e-6 && f.value < 0.99));
+    expect(integrated.length).toBeGreaterThan(3);
+    expect(JSON.stringify(result.tensors.map((t) => ({ statistics: t.statistics, risks: t.risks })))).toBe(JSON.stringify(eager(2 ** 20)));
   });
 
   it("stays plain data: the fields are the objects' own, in the documented order, and an assigned one is kept", () => {
