@@ -15,9 +15,9 @@ import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
-import { capWithin, farThreshold } from "./settle.js";
+import { capWithin, farThreshold, overflowRiskOf } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
-import { overflowAtRiskThreshold, overflowRiskOf } from "./tensor.js";
+import { overflowAtRiskThreshold } from "./tensor.js";
 import { noFindings, overflowFinding } from "./tensor-finding.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 

@@ -10,6 +10,9 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { normalLogSf, normalSf } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
+import { nonzeroElements } from "./laws.js";
+import { probabilityAnyAbove } from "./profile.js";
+import type { RangeLimits } from "./types.js";
 
 /**
  * A bound below this settles a number as 0 (and above 1 minus it as 1): a tenth of the 1e-12 absolute accuracy of the
@@ -131,4 +134,13 @@ export function settledAnyAbove(profile: MagnitudeProfile, t: number, n: number)
   const logTail = Math.max(Math.log((2 * low) / (low * low + 1)) - (low * low) / 2 - 0.5 * Math.log(2 * Math.PI), Math.log1p(-Math.min(1, DENSITY * low)));
   if (logN + logTail >= LOG_ENOUGH) return 1;
   return UNSETTLED;
+}
+
+/**
+ * The overflow probability of a profile with nonzero elements as a tensor's numbers report it (src/risk/tensor.ts,
+ * settledRisk): settled by {@link settledAnyAbove} where it decides, else integrated.
+ */
+export function overflowRiskOf(profile: MagnitudeProfile, limits: RangeLimits): number {
+  const settled = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
+  return settled >= 0 ? settled : probabilityAnyAbove(profile, limits.overflowLevel);
 }

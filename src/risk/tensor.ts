@@ -18,8 +18,8 @@ import {
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
-import { isEmpty, nonzeroElements } from "./laws.js";
+import { overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
+import { isEmpty } from "./laws.js";
 import { noiseAtMost, smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
@@ -208,8 +208,8 @@ export interface TensorRiskNumbers {
 
 /**
  * The numbers of {@link scaledTensorRisk}, without its findings (what a tensor's risk read later works out).
- * `startOverflow` and `endOverflow`: each side's overflow probability when already worked out (by
- * {@link overflowRiskOf}, as src/risk/decide.ts does for a finding), else −1; without per-tensor scale factors only.
+ * `startOverflow` and `endOverflow`: each side's overflow probability when already worked out (by overflowRiskOf,
+ * src/risk/settle.ts, as src/risk/decide.ts does for a finding), else −1; without per-tensor scale factors only.
  */
 export function scaledTensorNumbers(scaled: ScaledTensor, limits: RangeLimits, options: TensorRiskOptions, startOverflow = -1, endOverflow = -1): TensorRiskNumbers {
   const { statistics } = scaled;
@@ -348,7 +348,7 @@ function withNoise(risk: ProfileRisk, stored: MagnitudeProfile, limits: RangeLim
  * {@link profileRisk} with its subnormal noise ({@link withNoise}), each share and probability settled by a cheap bound
  * where one decides it (src/risk/settle.ts: 0 under SETTLED, an overflow probability of 1 within SETTLED), so that only
  * the numbers near a format's limits are integrated. `overflow`: the overflow probability when already worked out by
- * {@link overflowRiskOf}, else −1.
+ * overflowRiskOf (src/risk/settle.ts), else −1.
  */
 function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: ProfileStatistics, overflow: number): TensorProfileRisk {
   if (isEmpty(profile)) return withNoise(profileRisk(profile, limits, stats), profile, limits, false);
@@ -376,15 +376,6 @@ function settledRisk(profile: MagnitudeProfile, limits: RangeLimits, stats: Prof
     headroom: Math.log2(limits.maxFinite / stats.max),
     footroom: Math.log2(stats.low / limits.smallest),
   };
-}
-
-/**
- * The overflow probability of a profile with nonzero elements as {@link settledRisk} reports it: settled by a bound
- * where one decides it (src/risk/settle.ts), else integrated.
- */
-export function overflowRiskOf(profile: MagnitudeProfile, limits: RangeLimits): number {
-  const settled = settledAnyAbove(profile, limits.overflowLevel, nonzeroElements(profile));
-  return settled >= 0 ? settled : probabilityAnyAbove(profile, limits.overflowLevel);
 }
 
 function minOrNull(a: number | null, b: number | null): number | null {
