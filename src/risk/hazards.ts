@@ -15,7 +15,7 @@ import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./ten
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { flushedSecondMoments, flushedSecondMomentsVerdict, networkZeroSecondMomentsAt, storedEpsilon, vanishedEpsilonVerdict, zeroSecondMoments } from "./second-moments.js";
-import { distinctNumbers, flat, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when } from "./words.js";
+import { distinctNumbers, flat, limitNumber, plainNumber, probabilityWords, scaleWords, sharePercent, when, Words } from "./words.js";
 
 /** The plan as the hazard checks see it: the range of each plan entry, and the training setup. */
 export interface HazardContext {
@@ -526,38 +526,6 @@ function gradientSumErrorTail(value: number, verdict: Verdict, terms: number, un
     most >= 1 && most < terms ? `sum at most ${most} contribution${most === 1 ? "" : "s"} (fewer accumulation steps or workers)` : "",
   ].filter((x) => x !== "");
   return remedies.length > 0 ? `${said}: ${remedies.join(", or ")}.` : `${said}.`;
-}
-
-/**
- * The words of a sentence that do not name its site, kept for the next sentence of the same wording: the sites of a
- * network follow each other kind by kind, and most of them share these words (the same format, verdict, side and often
- * number), so their sentences are the site's name between strings made once (fewer pieces to make and flatten). Keyed
- * by everything the words are made from, compared exactly (a NaN key never holds).
- */
-class Words {
-  private a = "";
-  private b = "";
-  private c = "";
-  private x = Number.NaN;
-  private y = Number.NaN;
-  private z = Number.NaN;
-  /** one more number some words depend on, compared by the caller */
-  extra = Number.NaN;
-  text = "";
-
-  holds(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
-    return this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z;
-  }
-
-  keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
-    this.a = a;
-    this.b = b;
-    this.c = c;
-    this.x = x;
-    this.y = y;
-    this.z = z;
-    this.text = flat(text);
-  }
 }
 
 const ACCUMULATION_ERROR_TAIL = new Words();

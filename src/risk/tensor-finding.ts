@@ -3,7 +3,7 @@
  * the numbers (src/risk/tensor.ts) and the one decided by bounds (src/risk/decide.ts), so both word it alike.
  */
 import type { Finding, RangeLimits, Verdict } from "./types.js";
-import { plainNumber, when } from "./words.js";
+import { plainNumber, when, Words } from "./words.js";
 
 /**
  * The findings of the tensor being judged (its first entries), before they are copied out: one allocation site for every
@@ -30,38 +30,24 @@ export function overflowRiskFinding(
     value,
     threshold,
     at,
-    // the pieces around the value are the same for every tensor of a check: made once, the sentence joins four
-    sentence: subject + overflowMiddle(limits) + plainNumber(value) + overflowTail(at, threshold),
+    sentence: subject + afterSubject(limits, severity, value, threshold, at),
   };
 }
 
-// " overflows binary16 with probability " for the last range asked (a check's tensor findings come format by format)
-function overflowMiddle(limits: RangeLimits): string {
-  if (limits !== middleLimits) {
-    middleLimits = limits;
-    middle = `${limits.saturates ? " saturates " : " overflows "}${limits.format} with probability `;
-  }
-  return middle;
-}
-let middleLimits: RangeLimits | null = null;
-let middle = "";
+// The words after the subject (" overflows binary16 with probability 1 per step at the end of the horizon (limit
+// 0.01)."), kept per grade and moment (Words): a check's overflow findings alternate between the at-risk and the failing
+// limit and between the ends of the horizon, and most of them in one format report the same probability (1), so their
+// sentences are the subject and one string made once
+const AFTER_SUBJECT = [new Words(), new Words(), new Words(), new Words()];
 
-// " per step at the start of training (limit 1e-6)." per moment, for the last two limits asked (at risk and failing)
-function overflowTail(at: "start" | "end", threshold: number): string {
-  let slot = threshold === TAIL_LIMITS[0] ? 0 : threshold === TAIL_LIMITS[1] ? 1 : -1;
-  if (slot < 0) {
-    slot = tailNext;
-    tailNext = 1 - slot;
-    TAIL_LIMITS[slot] = threshold;
-    const limit = ` (limit ${plainNumber(threshold)}).`;
-    TAILS[2 * slot] = ` per step ${when("start")}${limit}`;
-    TAILS[2 * slot + 1] = ` per step ${when("end")}${limit}`;
+function afterSubject(limits: RangeLimits, severity: Exclude<Verdict, "fits">, value: number, threshold: number, at: "start" | "end"): string {
+  const words = AFTER_SUBJECT[(severity === "fails" ? 2 : 0) + (at === "start" ? 0 : 1)] as Words;
+  const verb = limits.saturates ? " saturates " : " overflows ";
+  if (!words.holds(limits.format, verb, at, value, threshold, 0)) {
+    words.keep(limits.format, verb, at, value, threshold, 0, `${verb}${limits.format} with probability ${plainNumber(value)} per step ${when(at)} (limit ${plainNumber(threshold)}).`);
   }
-  return TAILS[2 * slot + (at === "start" ? 0 : 1)] as string;
+  return words.text;
 }
-const TAIL_LIMITS = new Float64Array(2).fill(Number.NaN);
-const TAILS = ["", "", "", ""];
-let tailNext = 0;
 
 /** A tensor's findings with none in them, from the one place every tensor's findings array is made. */
 export function noFindings(): Finding[] {

@@ -218,3 +218,35 @@ export function flat(text: string): string {
   text.charCodeAt(0);
   return text;
 }
+
+/**
+ * The words of a sentence that do not name its subject, kept for the next sentence of the same wording: the sites and
+ * tensors of a network follow each other kind by kind, and most of them share these words (the same format, verdict,
+ * side and often number), so their sentences are the subject's name between strings made once (fewer pieces to make
+ * and flatten). Keyed by everything the words are made from, compared exactly (a NaN key never holds).
+ */
+export class Words {
+  private a = "";
+  private b = "";
+  private c = "";
+  private x = Number.NaN;
+  private y = Number.NaN;
+  private z = Number.NaN;
+  /** one more number some words depend on, compared by the caller */
+  extra = Number.NaN;
+  text = "";
+
+  holds(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
+    return this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z;
+  }
+
+  keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    this.a = a;
+    this.b = b;
+    this.c = c;
+    this.x = x;
+    this.y = y;
+    this.z = z;
+    this.text = flat(text);
+  }
+}
