@@ -2300,9 +2300,9 @@ function levelTableValue(spread: number, p: number): number {
   const firstRow = Math.floor(v) - (SPREAD_POINTS >> 1) + 1;
   if (count !== N_WEIGHTS_OF[0]) {
     const u = Math.log(count) * GRID_PER_LN;
+    // every caller has count ≥ GRID_COUNT (lawMixtureCrossing tests it, gaussianLevelFactors takes only the profiles
+    // gaussianLevelsTabled admits): u ≥ ln 64·8 ≈ 33.3, so the first count point is 31 or above
     const first = Math.floor(u) - (TABLE_POINTS >> 1) + 1;
-    // the lowest count point is GRID_COUNT's row and below (ln 64·8 ≈ 33.3): a count point at or below 30 is left to the search
-    if (first < 30) return NaN;
     lagrangeWeights(N_WEIGHTS, X_SCALE, u - first);
     N_WEIGHTS_OF[0] = count;
     N_WEIGHTS_OF[1] = first;
