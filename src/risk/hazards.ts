@@ -8,7 +8,7 @@ import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitud
 import { anyOf, normalSf } from "./_math.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
-import { elementLaw, overDraws } from "./laws.js";
+import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
 import { settledAnyAbove, settledEnergyBelow } from "./settle.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
@@ -758,12 +758,13 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
     t.energyAtRisk, t.energyFails, false, GRADIENT_ACCUMULATION_FLUSH, scaled.rms, false);
 }
 
-// Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw (z = 9,
-// src/risk/laws.ts) the level is over 40 of the sum's standard deviations away, where Q underflows to 0 (Q(40) ≈ 4e-350,
-// below the smallest double), so the draw sum is 0 without a closure or a sum, as the sum itself would find it
+// Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw
+// (z = DRAW_LIMIT = 9, src/risk/laws.ts) the level is over 40 of the sum's standard deviations away, where Q underflows
+// to 0 (Q(40) ≈ 4e-350, below the smallest double), so the draw sum is 0 without a closure or a sum, as the sum itself
+// would find it
 function sumFarBelow(profile: MagnitudeProfile, level: number, terms: number): boolean {
-  // the scale at z = 9, a little high against the rounding of the rule's own factors
-  const top = profile.rms * 2 ** (Math.max(0, profile.log2Spread) * 9) * (1 + 1e-9);
+  // the scale at the largest draw, a little high against the rounding of the rule's own factors
+  const top = profile.rms * 2 ** (Math.max(0, profile.log2Spread) * DRAW_LIMIT) * (1 + 1e-9);
   return level / (Math.sqrt(terms) * top) > 40;
 }
 

@@ -221,7 +221,8 @@ function baseLaw(profile: MagnitudeProfile): ElementLaw {
 // nodes resolves poorly; composite Simpson on a uniform grid (step 1/8) over ±9 standard deviations resolves a step
 // as wide as a few nodes, and the mass beyond 9 (about 2e-19) is below any probability we report. Narrower steps
 // take their own rules: the any-above sums (anyAboveSum) and the panels of stepwiseSum.
-const DRAW_LIMIT = 9;
+/** the draws' outermost node, in standard deviations (the hazards' closed-form tails start from it too) */
+export const DRAW_LIMIT = 9;
 const DRAW_STEP = 1 / 8;
 /** spreads below this many binades are taken as none by the level searches (lawMixtureCrossing) */
 const NEGLIGIBLE_SPREAD = 1e-16;
