@@ -209,7 +209,7 @@ export function evaluateHazard(
   const ended = siteEnd !== undefined || network;
   if (siteEnd !== undefined && site.kind === "gradient-sum") {
     // both sides at once: only the worse of each is reported, and a far smaller one need not be integrated
-    gradientSumSides(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, start, end);
+    gradientSumSides(site, siteEnd, context, start, end);
   } else {
     draftsFor(site, site.input, site.output, context, start, network ? "start" : null);
     if (siteEnd !== undefined) {
@@ -329,7 +329,7 @@ function draftsFor(
     case "loss-value":
       return lossValue(site, input, context, list);
     case "gradient-sum":
-      return gradientSum(site, input, output, context, list);
+      return gradientSum(site, context, list);
     case "optimizer-constant":
       return optimizerConstant(site, input, context, list, networkSide);
     case "optimizer-second-moment":
@@ -852,30 +852,8 @@ function stalledShortfall(n: number, term: number, unitRoundoff: number): number
 // the tensor's own predicted max, or per-block scales following each block's maximum. A division by the worker count
 // then moves the scale with the values (exactly for a power of two; within the binade the scale is floored to otherwise)
 // instead of pushing them under the flush bound, and the sum overflows only as often as the scale rule clips.
-function gradientSum(site: HazardSite, input: MagnitudeProfile, output: MagnitudeProfile | undefined, context: HazardContext, list: DraftList): void {
-  // the running total, and each worker's share before it, sit in the sum buffer
-  const limits = context.gradientSums;
-  const t = context.thresholds;
-  const terms = Math.max(1, site.terms);
-  const format = FORMATS[limits.format];
-  const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
-  const block = scaling === "block" ? blockScaledRiskCached(format) : null;
-  const summed = output !== undefined ? scaledIn(START_SUMMED, output, context.lossScale) : scaledIn(START_SUMMED, input, context.lossScale * terms);
-  const level = sumOverflowLevel(summed, block, scaling, limits, t);
-  const overflow = probabilityAnyAbove(summed, level);
-  putGraded(list, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", overflow, level / context.lossScale,
-    overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates), t.overflowFails, false, GRADIENT_SUM_OVERFLOW, summed.rms, false);
-  if (context.workerGradients === "average" && context.workers > 1) {
-    const scaled = scaledIn(START_SCALED, input, context.lossScale);
-    const divided = scaledIn(START_DIVIDED, scaled, 1 / context.workers);
-    const dividedLevel = flushLevel(divided, block, scaling, limits, t);
-    const lost = lostEnergy(scaled, divided, dividedLevel, block, scaling, limits, t);
-    putGraded(list, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", lost, dividedLevel * context.workers,
-      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
-  }
-  // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
-  putGraded(list, limits, "gradientSums", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
-    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+function gradientSum(site: HazardSite, context: HazardContext, start: DraftList): void {
+  gradientSumSides(site, null, context, start, null);
 }
 
 // A side's number the settle bounds put below SETTLED (src/risk/settle.ts) is taken as at most this, a margin of 10^3
@@ -884,20 +862,21 @@ function gradientSum(site: HazardSite, input: MagnitudeProfile, output: Magnitud
 const SETTLED_SIDE = 1e-10;
 
 /**
- * {@link gradientSum} at the start and the end of the horizon at once, into `start` and `end` (the same drafts, in the
- * same order). Only the worse side of each evaluation is reported (evaluateHazard), so a side whose overflow
- * probability or flushed share the closed-form bounds of src/risk/settle.ts put below SETTLED_SIDE is not integrated
- * where the other side's number, integrated, is above it: that side's draft then holds SETTLED_SIDE, a bound on its
- * number, which the choice of the worse side reads as it would read the number (every verdict rises with the number).
+ * {@link gradientSum} at the start and, given `siteEnd` and `end`, the end of the horizon at once, into `start` and
+ * `end` (the same drafts, in the same order). Only the worse side of each evaluation is reported (evaluateHazard), so a
+ * side whose overflow probability or flushed share the closed-form bounds of src/risk/settle.ts put below SETTLED_SIDE
+ * is not integrated where the other side's number, integrated, is above it: that side's draft then holds SETTLED_SIDE,
+ * a bound on its number, which the choice of the worse side reads as it would read the number (every verdict rises
+ * with the number).
  */
 function gradientSumSides(
   site: HazardSite,
-  endInput: MagnitudeProfile,
-  endOutput: MagnitudeProfile | undefined,
+  siteEnd: HazardSite["end"] | null,
   context: HazardContext,
   start: DraftList,
-  end: DraftList,
+  end: DraftList | null,
 ): void {
+  // the running total, and each worker's share before it, sit in the sum buffer
   const limits = context.gradientSums;
   const t = context.thresholds;
   const terms = Math.max(1, site.terms);
@@ -905,14 +884,18 @@ function gradientSumSides(
   const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
   const block = scaling === "block" ? blockScaledRiskCached(format) : null;
   const lossScale = context.lossScale;
-  const startOutput = site.output;
-  const startSummed = startOutput !== undefined ? scaledIn(START_SUMMED, startOutput, lossScale) : scaledIn(START_SUMMED, site.input, lossScale * terms);
-  const endSummed = endOutput !== undefined ? scaledIn(END_SUMMED, endOutput, lossScale) : scaledIn(END_SUMMED, endInput, lossScale * terms);
+  const sides = siteEnd !== null && siteEnd !== undefined && end !== null;
+  const endInput = sides ? siteEnd.input : site.input;
+  const endOutput = sides ? (siteEnd.output !== undefined ? siteEnd.output : site.output) : site.output;
+  const startSummed = summedIn(START_SUMMED, site.input, site.output, lossScale, terms);
   const startLevel = sumOverflowLevel(startSummed, block, scaling, limits, t);
-  const endLevel = sumOverflowLevel(endSummed, block, scaling, limits, t);
+  const endSummed = sides ? summedIn(END_SUMMED, endInput, endOutput, lossScale, terms) : startSummed;
+  const endLevel = sides ? sumOverflowLevel(endSummed, block, scaling, limits, t) : startLevel;
   let startOverflow = Number.NaN;
   let endOverflow = Number.NaN;
-  if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
+  if (!sides) {
+    startOverflow = probabilityAnyAbove(startSummed, startLevel);
+  } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
     startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
   } else {
@@ -925,39 +908,57 @@ function gradientSumSides(
   const overflowAtRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
     overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
-  putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endOverflow, endLevel / lossScale,
-    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endSummed.rms, false);
+  if (end !== null) {
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endOverflow, endLevel / lossScale,
+      overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endSummed.rms, false);
+  }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
     const startScaled = scaledIn(START_SCALED, site.input, lossScale);
     const startDivided = scaledIn(START_DIVIDED, startScaled, 1 / workers);
     const startLevelDivided = flushLevel(startDivided, block, scaling, limits, t);
-    const endScaled = scaledIn(END_SCALED, endInput, lossScale);
-    const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
-    const endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
     let startLost = Number.NaN;
     let endLost = Number.NaN;
-    // the share lost is at most the divided gradients' share below the level
-    if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
-      endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
-      startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
-    } else {
+    let endLevelDivided = Number.NaN;
+    if (!sides) {
       startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
-      endLost =
-        startLost > SETTLED_SIDE && settledEnergyBelow(endDivided, endLevelDivided) === 0
-          ? SETTLED_SIDE
-          : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+    } else {
+      const endScaled = scaledIn(END_SCALED, endInput, lossScale);
+      const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
+      endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
+      // the share lost is at most the divided gradients' share below the level
+      if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
+        endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+        startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+      } else {
+        startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+        endLost =
+          startLost > SETTLED_SIDE && settledEnergyBelow(endDivided, endLevelDivided) === 0
+            ? SETTLED_SIDE
+            : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+      }
     }
     putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLost, startLevelDivided * workers,
       t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
-    putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLost, endLevelDivided * workers,
-      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    if (end !== null) {
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLost, endLevelDivided * workers,
+        t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    }
   }
+  // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   const error = sumRoundingError(terms, limits.unitRoundoff);
   putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
-  putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
-    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  if (end !== null) {
+    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
+      t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  }
+}
+
+// The summed gradients of one side in the sum buffer's units: the engine's predicted sum (`output`) when it gives one,
+// else `terms` times one contribution, after the loss scale
+function summedIn(slot: MagnitudeProfile, input: MagnitudeProfile, output: MagnitudeProfile | undefined, lossScale: number, terms: number): MagnitudeProfile {
+  return output !== undefined ? scaledIn(slot, output, lossScale) : scaledIn(slot, input, lossScale * terms);
 }
 
 // the level summed gradients overflow from, in their own units (before any scale factor), as gradientSum takes it
