@@ -723,20 +723,12 @@ function judgeSiteOnce(site: HazardSite, origin: HazardCheck["origin"], settings
   const judged = evaluateHazard(site, context, origin);
   const evaluations = judged.evaluations;
   const findings = judged.findings;
-  const check: HazardCheck = {
-    kind: site.kind,
-    layer: judged.layer,
-    detail: site.detail,
-    guarded: site.guarded,
-    terms: site.terms,
-    input: judged.input,
-    origin,
-    evaluations: inSettingsOrder(evaluations, settings) ? evaluations : bySettings(evaluations, settings),
-    findings: inSettingsOrder(findings, settings) ? findings : bySettings(findings, settings),
-  };
-  if (site.constant !== undefined) check.constant = site.constant;
-  if (site.gradient === true) check.gradient = true;
-  return check;
+  return siteCheck(
+    judged,
+    judged,
+    inSettingsOrder(evaluations, settings) ? evaluations : bySettings(evaluations, settings),
+    inSettingsOrder(findings, settings) ? findings : bySettings(findings, settings),
+  );
 }
 
 // whether each item's format is a judged one, the formats in the settings' order
