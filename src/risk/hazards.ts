@@ -190,7 +190,7 @@ function fill(
 }
 
 /**
- * Judge one operation site against the plan.
+ * Judge one operation site against the plan. Every result has one layout: `constant` is undefined for a site without one.
  * @example evaluateHazard({ kind: "softmax-exp", guarded: false, input: logits, ... }, context).findings
  */
 export function evaluateHazard(
@@ -198,6 +198,18 @@ export function evaluateHazard(
   context: HazardContext,
   origin: HazardCheck["origin"] = "prediction",
 ): HazardCheck {
+  return hazardCheck(site, context, origin, true);
+}
+
+/**
+ * {@link evaluateHazard} in the layout of a check result's hazards, `constant` only where the site has one (judge.ts's
+ * siteCheck): a check judged under one plan is kept as it is, not copied into that layout.
+ */
+export function evaluateSite(site: HazardSite, context: HazardContext, origin: HazardCheck["origin"]): HazardCheck {
+  return hazardCheck(site, context, origin, false);
+}
+
+function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardCheck["origin"], keepConstant: boolean): HazardCheck {
   const start = START;
   const end = END;
   start.count = 0;
@@ -290,8 +302,8 @@ export function evaluateHazard(
     origin,
     evaluations: evaluations.slice(0, evaluationCount),
     findings: findings.slice(0, findingCount),
-    constant: site.constant,
   };
+  if (keepConstant || site.constant !== undefined) check.constant = site.constant;
   if (site.gradient === true) check.gradient = true;
   return check;
 }

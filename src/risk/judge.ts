@@ -20,7 +20,7 @@ import { lossScaleProblem } from "../spec/limits.js";
 import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { evaluateHazard, type HazardContext } from "./hazards.js";
+import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
 import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
@@ -717,18 +717,17 @@ function oneContext(settings: readonly FormatSetting[]): boolean {
 
 // One operation site under one plan for every judged format: judgeSite's check without a check per format to gather
 // from. Its evaluations and findings are those of the judged formats, format by format in the settings' order, as
-// judgeSite gathers them: the evaluation's own arrays where they are so already (most sites hold one format, or the
+// judgeSite gathers them: evaluateSite's check itself where they are so already (most sites hold one format, or the
 // activation format before the accumulate one).
 function judgeSiteOnce(site: HazardSite, origin: HazardCheck["origin"], settings: readonly FormatSetting[], context: HazardContext): HazardCheck {
-  const judged = evaluateHazard(site, context, origin);
+  const judged = evaluateSite(site, context, origin);
   const evaluations = judged.evaluations;
   const findings = judged.findings;
-  return siteCheck(
-    judged,
-    judged,
-    inSettingsOrder(evaluations, settings) ? evaluations : bySettings(evaluations, settings),
-    inSettingsOrder(findings, settings) ? findings : bySettings(findings, settings),
-  );
+  const ordered = inSettingsOrder(evaluations, settings);
+  const orderedFindings = inSettingsOrder(findings, settings);
+  // evaluateSite's check has siteCheck's layout, and none of its evaluations names the check's own layer
+  if (ordered && orderedFindings) return judged;
+  return siteCheck(judged, judged, ordered ? evaluations : bySettings(evaluations, settings), orderedFindings ? findings : bySettings(findings, settings));
 }
 
 // whether each item's format is a judged one, the formats in the settings' order
