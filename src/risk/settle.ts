@@ -35,9 +35,11 @@ const LOG_SETTLED = Math.log(SETTLED);
 const DENSITY = Math.sqrt(2 / Math.PI);
 const LOG_ENOUGH = Math.log(32);
 
-// Whether the profile's element law at threshold t is the Gaussian magnitude's for every draw: the shapes whose law
-// is erf/erfc of t/r (src/risk/laws.ts), with no bound at or below t (`strict`: a bound equal to t decides too).
-function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
+/**
+ * Whether the profile's element law at threshold t is the Gaussian magnitude's for every draw: the shapes whose law
+ * is erf/erfc of t/r (src/risk/laws.ts), with no bound at or below t.
+ */
+export function gaussianAt(profile: MagnitudeProfile, t: number): boolean {
   const shape = profile.shape;
   if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return false;
   const bound = profile.bound;

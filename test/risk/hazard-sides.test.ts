@@ -2,6 +2,9 @@ import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
 import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
 import { evaluateHazard, plainNumber, type HazardContext, type HazardEvaluation } from "../../src/risk/index.js";
+import { anyAboveAtMost } from "../../src/risk/hazards.js";
+import { nonzeroElements, probabilityAnyAbove } from "../../src/risk/profile.js";
+import { settledAnyAbove } from "../../src/risk/settle.js";
 import { probabilityWords, sharePercent } from "../../src/risk/words.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING, E5M2 } from "./limits.js";
 import { context, profile, site } from "./hazard-sites.js";
@@ -132,6 +135,73 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
       ["relative-error", "start", "fits"],
     ]);
     expect(exploded[0]!.value).toBe(1);
+  });
+});
+
+// A start whose overflow probability the settle bounds leave open but anyAboveAtMost puts under a quarter of the fails
+// threshold cannot fail: beside an end that fails, the end is the worse side whatever the start's number, and the start
+// is not integrated (gradientSumSides). The 1,000-layer network's weight gradients are so: 2^24 to 2^27 below binary16's
+// overflow level at the start, with a spread of about 3.2 binades, and far past it at the end.
+describe("a start that cannot fail beside an end that fails", () => {
+  const quiet = fc.record({
+    // binades from the start's rms up to binary16's overflow level (2^16, IEEE 754-2019 Table 3.5)
+    headroom: fc.double({ min: 8, max: 40, noNaN: true }),
+    log2Spread: fc.double({ min: 0.5, max: 4, noNaN: true }),
+    log2Elements: fc.integer({ min: 4, max: 20 }),
+    zeroFraction: fc.double({ min: 0, max: 0.9, noNaN: true }),
+    // binades the end's rms lies past the level (below it too: an end that does not fail)
+    past: fc.double({ min: -24, max: 60, noNaN: true }),
+    shape: fc.constantFrom<MagnitudeProfile["shape"]>("gaussian", "half-gaussian"),
+  });
+
+  it("reports the end's failure as judging each side alone and comparing gives (property)", () => {
+    let open = 0;
+    fc.assert(
+      fc.property(quiet, (q) => {
+        const ctx = context({ workers: 2, workerGradients: "average" });
+        const start = profile({ shape: q.shape, rms: 2 ** (16 - q.headroom), log2Spread: q.log2Spread, elements: 2 ** q.log2Elements, zeroFraction: q.zeroFraction });
+        const end = profile({ shape: q.shape, rms: 2 ** (16 + q.past), log2Spread: q.log2Spread, elements: 2 ** q.log2Elements, zeroFraction: q.zeroFraction });
+        const level = BINARY16.overflowLevel;
+        if (settledAnyAbove(start, level, nonzeroElements(start)) !== 0 && anyAboveAtMost(start, level, nonzeroElements(start), ctx.thresholds.overflowFails / 4)) open++;
+        const sides = site({ kind: "gradient-sum", terms: 1, input: start, end: { input: end } });
+        expectWorseSide(sides, site({ kind: "gradient-sum", terms: 1, input: start }), site({ kind: "gradient-sum", terms: 1, input: end }), ctx);
+      }),
+      { numRuns: 300 },
+    );
+    // the sides' shortcut was taken in a good share of the runs (the property is not about other branches only)
+    expect(open).toBeGreaterThan(60);
+  });
+
+  it("anyAboveAtMost holds: where it says at most p, the integrated probability is at most p (property)", () => {
+    let said = 0;
+    fc.assert(
+      fc.property(
+        quiet,
+        fc.constantFrom(1e-6, 1e-4, 2.5e-3, 0.1, 0.5),
+        fc.constantFrom<MagnitudeProfile["shape"]>("gaussian", "half-gaussian", "bounded"),
+        (q, p, shape) => {
+          const rms = 2 ** (16 - q.headroom / 4);
+          const drawn = profile({ shape, rms, log2Spread: q.log2Spread, elements: 2 ** q.log2Elements, zeroFraction: q.zeroFraction, ...(shape === "bounded" ? { bound: rms * 2 ** 20 } : {}) });
+          const level = BINARY16.overflowLevel;
+          if (!anyAboveAtMost(drawn, level, nonzeroElements(drawn), p)) return;
+          said++;
+          expect(probabilityAnyAbove(drawn, level)).toBeLessThanOrEqual(p);
+        },
+      ),
+      { numRuns: 400 },
+    );
+    expect(said).toBeGreaterThan(100);
+  });
+
+  it("says nothing for laws it does not bound, or p outside [1e-6, 1)", () => {
+    const tail = profile({ rms: 1, log2Spread: 1, elements: 1024 });
+    expect(anyAboveAtMost(tail, 2 ** 20, 1024, 0.01)).toBe(true);
+    expect(anyAboveAtMost({ ...tail, shape: "uniform" }, 2 ** 20, 1024, 0.01)).toBe(false);
+    expect(anyAboveAtMost({ ...tail, shape: "log-normal", elementLog2Spread: 1 }, 2 ** 20, 1024, 0.01)).toBe(false);
+    expect(anyAboveAtMost(tail, 2 ** 20, 1024, 1e-7)).toBe(false);
+    expect(anyAboveAtMost(tail, 2 ** 20, 1024, 1)).toBe(false);
+    // a threshold within the draws' reach is not bounded
+    expect(anyAboveAtMost(tail, 2, 1024, 0.01)).toBe(false);
   });
 });
 
