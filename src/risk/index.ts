@@ -4,7 +4,7 @@ export * from "./catalogue.js";
 export { elementLaw, overDraws, type ElementLaw } from "./laws.js";
 export * from "./profile.js";
 export * from "./tensor.js";
-export * from "./hazards.js";
+export { evaluateHazard, hazardVerdict, type HazardContext } from "./hazards.js";
 export * from "./verdict.js";
 export { VERDICT_RANK } from "./verdict-order.js";
 export { plainNumber, percent, binades } from "./words.js";
