@@ -614,10 +614,11 @@ function judgeTensor(
   let start: MagnitudeProfile | undefined;
   let end: MagnitudeProfile | undefined;
   const bounded = parts === undefined && !isProbabilityRow(tensor);
-  // a format judged at another loss scale sees the tensor scaled by its own (gradients only; the rest are unscaled)
+  // a format judged at another loss scale sees the tensor scaled by its own (gradients and the loss; the rest are unscaled)
   let other: ScaledTensor | undefined;
   // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
-  // FP32); the loss-value hazard covers a loss kept in the activation format
+  // FP32) as the scaled loss summed (lossScaleFactor); the loss-value hazard judges that value there too, and covers a
+  // loss kept in the activation format
   const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
   // gathered in RISKS and copied out at their exact length: the result keeps one such array per tensor, and one
   // grown by push carries room for 17 elements

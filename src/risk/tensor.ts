@@ -31,9 +31,10 @@ import { normalCdf } from "./_math.js";
 export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
 
 /**
- * Roles the loss scale multiplies: the backward pass runs on the scaled loss (Micikevicius et al. 2018 §3.2).
- * The loss value itself is judged unscaled: the product S·L is usually formed in binary32 (common practice);
- * the loss-value hazard judges S·L in the plan's formats.
+ * The gradient roles the loss scale multiplies: the backward pass runs on the scaled loss (Micikevicius et al. 2018
+ * §3.2). The loss itself is held scaled too (see {@link lossScaleFactor}), but a scale's pick weighs it through the
+ * loss-value hazard, which judges the same value S·ΣL in the same format (and in the activation format): counting the
+ * tensor as well would count that one value twice.
  */
 export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
 
@@ -86,9 +87,13 @@ export interface TensorStatistics {
   arrayMax?: { start: number; end: number };
 }
 
-/** The factor the loss scale contributes to a tensor of this role. */
+/**
+ * The factor the loss scale contributes to a tensor of this role. The loss is held as the scaled loss summed, S·ΣL,
+ * in the accumulate format: the value backward starts from (Micikevicius et al. 2018 §3.2 scale the loss before
+ * backward), the one the loss-value hazard (src/risk/hazards.ts) and the simulation's loss counts judge.
+ */
 export function lossScaleFactor(role: TensorRole, lossScale: number): number {
-  return isGradientRole(role) ? lossScale : 1;
+  return isGradientRole(role) || role === "loss" ? lossScale : 1;
 }
 
 /** Statistics of a tensor's start and end profiles after its loss-scale factor. */
