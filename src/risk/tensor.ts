@@ -287,6 +287,18 @@ function massBelow(profile: MagnitudeProfile, t: number): number | null {
   return normalCdf(Math.log2(t / profile.rms) / spread);
 }
 
+/**
+ * Whether a tensor is the cross-entropy's own logit gradient, its wrong-class elements p_j/B (the whole of the stored
+ * array whose right-class elements are told apart: src/magnitude/predict.ts). Most of them are tiny by nature (p_j of
+ * a confident softmax), so a count of those flushed says nothing of the step: dropping δ_j changes the update of the
+ * logits' weights by δ_j·x, and the share of the gradient's squared norm flushed bounds that change (the
+ * gradient-energy finding), as the probability mass bounds a forward softmax row's. No loss scale or remedy moves a
+ * count of elements spread over 40 binades out of the range either.
+ */
+export function isLossLogitGradient(tensor: Pick<TensorPrediction, "role" | "partOf">, scaled: Pick<ScaledTensor, "statistics">): boolean {
+  return tensor.role === "activation-gradient" && tensor.partOf === undefined && scaled.statistics.arrayMax !== undefined;
+}
+
 // the per-tensor scale exponent of the last `evaluate` (a second return value, without an object per call)
 let evaluatedScaleLog2 = 0;
 
@@ -503,7 +515,8 @@ function tensorFindings(
   const flushStart = row ? mass.start : start.flushedFraction;
   const flushEnd = row ? mass.end : end.flushedFraction;
   const flushValue = Math.max(flushStart, flushEnd);
-  const flushed = grade(flushValue, t.flushedAtRisk, t.flushedFails);
+  // the loss's own logit gradient is judged by the share of its squared norm flushed alone (isLossLogitGradient)
+  const flushed = isLossLogitGradient(tensor, scaled) ? null : grade(flushValue, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) {
     const at = moreAt(flushStart, flushEnd, worst.flushAt);
     const threshold = flushed === "fails" ? t.flushedFails : t.flushedAtRisk;

@@ -55,3 +55,76 @@ describe("the loss is held as the scaled loss summed", () => {
     }
   });
 });
+
+// An invented scenario: a seed-sorting rig classifying camera crops into 30000 seed lots, trained until the loss is
+// tiny, so the wrong classes' probabilities, and so their logit gradients p_j, fall far below binary16's range.
+const CONFIDENT = spec(
+  `name: seed-lots
+input: { features: 512 }
+training:
+  batch: 16
+  loss: { kind: cross-entropy, classes: 30000, reduction: sum }
+  optimizer: { kind: adam, learning-rate: 1.0e-4 }
+  horizon: { steps: 100000, final-loss: 0.0001, weight-growth: 3 }
+precision: { name: half, activations: binary16, weights: binary16, gradients: binary16 }
+layers:
+  - { type: dense, width: 1024, init: he-normal }
+  - relu
+  - { type: dense, width: 30000, init: { kind: normal, std: 0.05 } }
+`,
+  "seed-lots.yaml",
+);
+
+// a seeded normal source of the test's own (xorshift32 and Box–Muller), apart from the project's
+function normals(seed: number): () => number {
+  let x = seed >>> 0 || 1;
+  const uniform = () => {
+    x ^= x << 13;
+    x >>>= 0;
+    x ^= x >>> 17;
+    x ^= x << 5;
+    x >>>= 0;
+    return (x + 0.5) / 2 ** 32;
+  };
+  return () => Math.sqrt(-2 * Math.log(uniform())) * Math.cos(2 * Math.PI * uniform());
+}
+
+describe("the loss's own logit gradient is judged by the share of its squared norm flushed", () => {
+  it("a confident softmax's wrong-class gradients: most elements flush, a negligible share of the squared norm does", () => {
+    // Outside the project: one row of wrong-class gradients p_j = (1 − p_y)·softmax(z)_j over 29999 classes, logits
+    // spread over ~7 binades of probability (z ~ N(0, 4.7²), ln-spread 4.7 = 6.8 binades), 1 − p_y = 1e-4 (the loss
+    // −ln p_y at 1e-4), times a loss scale 2^5, rounded to binary16 by @petamoriken/float16's f16round
+    const draw = normals(20261203);
+    const z = Array.from({ length: 29999 }, () => 4.7 * draw());
+    const top = Math.max(...z);
+    const e = z.map((v) => Math.exp(v - top));
+    const sum = e.reduce((a, b) => a + b, 0);
+    const g = e.map((v) => (1e-4 * 32 * v) / sum);
+    const flushed = g.filter((v) => f16round(v) === 0);
+    const countShare = flushed.length / g.length;
+    const energyShare = flushed.reduce((a, v) => a + v * v, 0) / g.reduce((a, v) => a + v * v, 0);
+    expect(countShare).toBeGreaterThan(0.1);
+    expect(energyShare).toBeLessThan(1e-4);
+
+    // the check sees the same regime, and judges it by the squared norm as README's thresholds say (1e-4, 1e-2)
+    const result = check(CONFIDENT, { lossScale: 32 });
+    const logits = result.tensors.find((t) => t.id === "dense-2/activation-gradient")!;
+    const risk = logits.risks.find((r) => r.format === "binary16")!;
+    expect(risk.worst.flushedFraction).toBeGreaterThan(0.1);
+    expect(risk.worst.flushedEnergy).toBeLessThan(1e-4);
+    expect(risk.findings.map((f) => f.kind)).not.toContain("flushed-values");
+    expect(risk.findings.map((f) => f.kind)).not.toContain("gradient-energy-flushed");
+    // its right-class elements, 1 − p_y, are still judged by their count: none of them flushes here
+    const right = result.tensors.find((t) => t.id === "dense-2/activation-gradient:target-class")!;
+    expect(right.risks[0]!.worst.flushedFraction).toBeLessThan(0.01);
+  });
+
+  it("the share of its squared norm flushed still decides: a loss scale of 2^-40 flushes it and fails", () => {
+    const result = check(CONFIDENT, { lossScale: 2 ** -40 });
+    const logits = result.tensors.find((t) => t.id === "dense-2/activation-gradient")!;
+    const risk = logits.risks.find((r) => r.format === "binary16")!;
+    // every wrong-class gradient times 2^-40 sits below binary16's smallest subnormal 2^-24 (IEEE 754-2019 §3.6)
+    expect(f16round(logits.start.rms * 2 ** -40)).toBe(0);
+    expect(risk.findings.find((f) => f.kind === "gradient-energy-flushed")?.severity).toBe("fails");
+  });
+});
