@@ -295,7 +295,7 @@ function massBelow(profile: MagnitudeProfile, t: number): number | null {
  * gradient-energy finding), as the probability mass bounds a forward softmax row's. No loss scale or remedy moves a
  * count of elements spread over 40 binades out of the range either.
  */
-export function isLossLogitGradient(tensor: Pick<TensorPrediction, "role" | "partOf">, scaled: Pick<ScaledTensor, "statistics">): boolean {
+function isLossLogitGradient(tensor: Pick<TensorPrediction, "role" | "partOf">, scaled: Pick<ScaledTensor, "statistics">): boolean {
   return tensor.role === "activation-gradient" && tensor.partOf === undefined && scaled.statistics.arrayMax !== undefined;
 }
 
