@@ -429,8 +429,10 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
 /**
  * The findings of the scaled subjects in one format with gradients at `lossScale`, by {@link judgePrediction}'s rules
  * and thresholds, subject by subject in `order`: index i < sites.length is site i, the rest tensor i − sites.length.
- * `visit` gets each finding with its subject's index and returns false to stop: a caller comparing scales stops one
- * once it cannot do better.
+ * The scaled loss is visited in every format that holds it (the activation and the accumulate format), since the same
+ * scale moves it there. `visit` gets each finding with its subject's index and whether it is conditional (at risk only
+ * where an implementation keeps the value in the activation format, {@link isConditionalFinding}), and returns false to
+ * stop: a caller comparing scales stops one once it cannot do better.
  */
 export function judgeScaled(
   subjects: ScaledSubjects,
@@ -438,7 +440,7 @@ export function judgeScaled(
   lossScale: number,
   thresholds: Partial<RiskThresholds> | undefined,
   order: readonly number[],
-  visit: (finding: Finding, subject: number) => boolean,
+  visit: (finding: Finding, subject: number, conditional: boolean) => boolean,
 ): void {
   const complete = thresholdsOf(thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...thresholds });
   const settings = formatSettings(subjects.spec.precision, [format], complete);
@@ -450,14 +452,30 @@ export function judgeScaled(
     if (i < sites) {
       const { site, origin } = subjects.sites[i] as ScaledSubjects["sites"][number];
       context ??= hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
-      for (const f of evaluateHazard(site, context, origin).findings) if (f.format === format && !visit(f, i)) return;
+      const checked = evaluateHazard(site, context, origin);
+      const loss = site.kind === "loss-value";
+      for (const f of checked.findings) {
+        if (f.format !== format && !loss) continue;
+        if (!visit(f, i, isConditionalFinding(checked, f))) return;
+      }
       continue;
     }
     for (const risk of judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays).risks) {
       if (risk.format !== format) continue;
-      for (const f of risk.findings) if (!visit(f, i)) return;
+      for (const f of risk.findings) if (!visit(f, i, false)) return;
     }
   }
+}
+
+/**
+ * Whether an operation's finding holds only where an implementation keeps the result in the activation format though
+ * the plan accumulates in a wider one (the scaled loss, a norm's sum of squares): its rule caps it at "at risk"
+ * (README "Verdicts"), and a pick of the loss scale weighs it after every finding that holds as planned.
+ */
+export function isConditionalFinding(hazard: Pick<HazardCheck, "evaluations">, finding: Finding): boolean {
+  if (finding.source !== "hazard" || finding.severity !== "at-risk") return false;
+  // the activation format is evaluated apart only when it is not the accumulate format (src/risk/hazards.ts)
+  return hazard.evaluations.some((e) => e.format === finding.format && e.heldIn === "activations" && e.measure === "overflow-risk" && e.verdict === "at-risk");
 }
 
 /** What every tensor's judgement in one format shares: the plan it is judged under, its range, its scaling. */

@@ -7,7 +7,18 @@
  */
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
-import { isScaledSite, judgeScaled, LOSS_SCALED_ROLES, scaledSubjects, type CheckOptions, type CheckResult, type Finding, type FindingKind, type ScaledSubjects } from "../risk/index.js";
+import {
+  isConditionalFinding,
+  isScaledSite,
+  judgeScaled,
+  LOSS_SCALED_ROLES,
+  scaledSubjects,
+  type CheckOptions,
+  type CheckResult,
+  type Finding,
+  type FindingKind,
+  type ScaledSubjects,
+} from "../risk/index.js";
 import type { NetworkSpec } from "../spec/types.js";
 import type { ScaleWindow } from "./window.js";
 
@@ -17,6 +28,11 @@ export interface ScaledFindings {
   atRisk: number;
   /** of these, the findings of the overflow side (a value too large), which a larger scale makes worse */
   overflowSide: number;
+  /**
+   * of these, the findings at risk only where an implementation keeps the value in the activation format though the
+   * plan accumulates in a wider one (the scaled loss): weighed after every finding that holds as planned
+   */
+  conditional: number;
 }
 
 /**
@@ -37,8 +53,9 @@ const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow
 
 /**
  * The findings of a judgement in `format` that move with the loss scale: those of the gradient tensors, and of the
- * operations on the scaled loss and gradients; `subjects`, when given, receives the ids of the tensors and the layers
- * of the operations that have them.
+ * operations on the scaled loss and gradients; the scaled loss in every format that holds it at the same scale (its
+ * activation and accumulate formats: the scale moves it there too). `subjects`, when given, receives the ids of the
+ * tensors and the layers of the operations that have them.
  */
 export function scaledFindings(result: CheckResult, format: FormatName, subjects?: { tensors: Set<string>; sites: Set<string> }): ScaledFindings {
   const counted = none();
@@ -46,19 +63,26 @@ export function scaledFindings(result: CheckResult, format: FormatName, subjects
     if (!LOSS_SCALED_ROLES.includes(t.role)) continue;
     for (const risk of t.risks) {
       if (risk.format !== format) continue;
-      for (const f of risk.findings) add(counted, f);
+      for (const f of risk.findings) add(counted, f, false);
       if (risk.findings.length > 0) subjects?.tensors.add(t.id);
     }
   }
+  const scale = scaleOf(result, format);
   for (const h of result.hazards) {
     if (!isScaledSite(h.kind, h.gradient)) continue;
     for (const f of h.findings) {
-      if (f.format !== format || !movesWithScale(f)) continue;
-      add(counted, f);
+      const held = f.format === format || (h.kind === "loss-value" && scaleOf(result, f.format) === scale);
+      if (!held || !movesWithScale(f)) continue;
+      add(counted, f, isConditionalFinding(h, f));
       subjects?.sites.add(h.layer);
     }
   }
   return counted;
+}
+
+// the loss scale a format of the result was judged at
+function scaleOf(result: CheckResult, format: FormatName): number {
+  return (result.formats.find((f) => f.format === format)?.lossScale ?? result.lossScale).value;
 }
 
 // a gradient sum's rounding error is relative (√n·u), the same at every scale: not a finding the scale moves
@@ -67,13 +91,14 @@ function movesWithScale(f: Finding): boolean {
 }
 
 function none(): ScaledFindings {
-  return { fails: 0, atRisk: 0, overflowSide: 0 };
+  return { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
 }
 
-function add(counted: ScaledFindings, f: Finding): void {
+function add(counted: ScaledFindings, f: Finding, conditional: boolean): void {
   if (f.severity === "fails") counted.fails++;
   else counted.atRisk++;
   if (OVERFLOW_KINDS.has(f.kind)) counted.overflowSide++;
+  if (conditional) counted.conditional++;
 }
 
 export function findingsTotal(f: ScaledFindings): number {
@@ -82,17 +107,25 @@ export function findingsTotal(f: ScaledFindings): number {
 
 /**
  * Whether a count is strictly better than another: fewer failing findings, then fewer of the overflow side, then fewer
- * at risk. A failing finding makes the verdict "fails", so a scale of the window that leaves one is never picked over
- * one that leaves only findings at risk. Among as many failing ones, the overflow side counts first: inside the window
- * every gradient keeps its flushed share of squared norm under the flush tolerance, so a flush-side finding there costs
- * precision on a bounded share, while an overflow under a static scale gives inf or NaN and costs the step
- * (Micikevicius et al. 2018 §3.2). Each count only grows as findings are added, and the order is lexicographic, so a
- * count that is not better stays so (the judgement's early stop).
+ * at risk, each without the conditional ones, then fewer conditional ones. A failing finding makes the verdict "fails",
+ * so a scale of the window that leaves one is never picked over one that leaves only findings at risk. Among as many
+ * failing ones, the overflow side counts first: inside the window every gradient keeps its flushed share of squared
+ * norm under the flush tolerance, so a flush-side finding there costs precision on a bounded share, while an overflow
+ * under a static scale gives inf or NaN and costs the step (Micikevicius et al. 2018 §3.2). A conditional finding (the
+ * scaled loss overflowing the activation format where the plan accumulates in a wider one) does not happen as planned,
+ * so it never outweighs one that does. Each count only grows as findings are added (a conditional finding adds to its
+ * kind's count and to the conditional count alike), and the order is lexicographic, so a count that is not better
+ * stays so (the judgement's early stop).
  */
 export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
   if (a.fails !== b.fails) return a.fails < b.fails;
-  if (a.overflowSide !== b.overflowSide) return a.overflowSide < b.overflowSide;
-  return a.atRisk < b.atRisk;
+  const overflowA = a.overflowSide - a.conditional;
+  const overflowB = b.overflowSide - b.conditional;
+  if (overflowA !== overflowB) return overflowA < overflowB;
+  const atRiskA = a.atRisk - a.conditional;
+  const atRiskB = b.atRisk - b.conditional;
+  if (atRiskA !== atRiskB) return atRiskA < atRiskB;
+  return a.conditional < b.conditional;
 }
 
 /**
@@ -154,9 +187,9 @@ export function weighPick(
     for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order.push(i);
     const found = none();
     let stopped = false;
-    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i) => {
+    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i, conditional) => {
       if (!movesWithScale(f)) return true;
-      add(found, f);
+      add(found, f, conditional);
       if (seen[i] === 0) {
         seen[i] = 1;
         first.push(i);

@@ -1085,7 +1085,10 @@ function findingWords(f: ScaledFindings, sayNone = false): string {
   const severities = f.atRisk === 0 || f.fails === 0 ? [] : [`${f.fails} failing, ${f.atRisk} at risk`];
   const overflow =
     f.overflowSide === 0 ? (sayNone ? "none of a value too large" : "") : f.overflowSide === total ? (total === 1 ? "of a value too large" : "all of a value too large") : `${f.overflowSide} of a value too large`;
-  const detail = [...severities, ...(overflow === "" ? [] : [overflow])].join("; ");
+  // a finding of the scaled loss kept in the activation format where the plan accumulates wider (src/scale/pick.ts)
+  const conditional =
+    f.conditional === 0 ? "" : `${f.conditional === total ? (total === 1 ? "" : "all ") : `${f.conditional} `}only if the loss is kept in the activation format`;
+  const detail = [...severities, ...(overflow === "" ? [] : [overflow]), ...(conditional === "" ? [] : [conditional])].join("; ");
   const base = f.atRisk === 0 ? `${total} failing finding${s}` : f.fails === 0 ? `${total} finding${s} at risk` : `${total} findings`;
   return detail === "" ? base : `${base} (${detail})`;
 }
@@ -1094,7 +1097,8 @@ function findingWords(f: ScaledFindings, sayNone = false): string {
 function weighingSentence(window: ScaleWindow, weighing: PickWeighing, options: WindowOptions, pow: (k: number) => string): string {
   const on = "on the gradients and the scaled loss (judged against the check's per-tensor thresholds)";
   if (weighing.centreLog2 === window.pickLog2) {
-    return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer of a value too large, or as few and fewer in all.`;
+    const after = weighing.atPick.conditional > 0 ? " (a finding that holds only if the loss is kept in the activation format counts after every other)" : "";
+    return `${pow(window.pickLog2!)} still leaves ${findingWords(weighing.atPick)} ${on}; no other scale in the window leaves fewer of a value too large, or as few and fewer in all${after}.`;
   }
   const closer = window.marginBelowOverflow! < options.marginBinades ? `; it sits closer to the overflow edge than the ${binades(options.marginBinades)} kept otherwise` : "";
   return `The window's centre rule alone gives ${pow(weighing.centreLog2)}, which would leave ${findingWords(weighing.atCentre)} ${on}; ${pow(window.pickLog2!)} leaves ${findingWords(weighing.atPick, weighing.atCentre.overflowSide > 0)}, the fewest failing among the window's scales, then the fewest of a value too large, then the fewest in all (a failing finding decides the verdict; an overflow costs the step; inside the window no gradient loses more than ${percent(options.flushTolerance)} of its squared norm to flushing)${closer}.`;

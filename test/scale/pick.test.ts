@@ -21,21 +21,32 @@ interface Counted {
   fails: number;
   atRisk: number;
   overflowSide: number;
+  conditional: number;
 }
 
 const SCALED_OPERATIONS = ["loss-value-overflow", "gradient-sum-overflow", "gradient-sum-flush"];
 const OVERFLOW = ["overflow", "saturation", "little-headroom", "loss-value-overflow", "gradient-sum-overflow"];
 
+// the scaled loss counts in every format of the plan that holds it (activations, accumulate): the scale moves it there
+// too; held in the activation format where the plan accumulates in a wider one it is conditional (README "Verdicts":
+// at most at risk), and counts after every other finding
 function counted(result: CheckAnswer, format: FormatName): Counted {
   const gradients = new Set(result.tensors.filter((t) => t.role === "activation-gradient" || t.role === "weight-gradient").map((t) => t.id));
+  const scale = (f: FormatName) => (result.formats.find((x) => x.format === f)?.lossScale ?? result.lossScale).value;
   const findings = result.formats
-    .filter((f) => f.format === format)
     .flatMap((f) => f.findings)
-    .filter((f) => (f.source === "tensor" ? gradients.has(f.subject) : SCALED_OPERATIONS.includes(f.kind)));
+    .filter((f) =>
+      f.format === format
+        ? f.source === "tensor" ? gradients.has(f.subject) : SCALED_OPERATIONS.includes(f.kind)
+        : f.kind === "loss-value-overflow" && scale(f.format) === scale(format),
+    );
+  const plan = result.plan;
+  const conditional = (f: (typeof findings)[number]) => f.kind === "loss-value-overflow" && f.format === plan.activations && plan.activations !== plan.accumulate;
   return {
     fails: findings.filter((f) => f.severity === "fails").length,
     atRisk: findings.filter((f) => f.severity === "at-risk").length,
     overflowSide: findings.filter((f) => OVERFLOW.includes(f.kind)).length,
+    conditional: findings.filter(conditional).length,
   };
 }
 
@@ -50,9 +61,14 @@ function everyScale(spec: NetworkSpec, plan: string | undefined, answer: NonNull
 
 // fewer failing findings first (one decides the verdict), then fewer of a value too large (an overflow costs the step
 // under a static scale, Micikevicius et al. 2018 §3.2; inside the window flushing is held under the tolerance), then
-// fewer at risk
-const better = (a: Counted, b: Counted) =>
-  a.fails !== b.fails ? a.fails < b.fails : a.overflowSide !== b.overflowSide ? a.overflowSide < b.overflowSide : a.atRisk < b.atRisk;
+// fewer at risk; a conditional finding (the scaled loss in the activation format where the plan accumulates wider) only
+// after all of these
+const better = (a: Counted, b: Counted) => {
+  const key = (c: Counted) => [c.fails, c.overflowSide - c.conditional, c.atRisk - c.conditional, c.conditional];
+  const [x, y] = [key(a), key(b)];
+  for (let i = 0; i < x.length; i++) if (x[i] !== y[i]) return x[i]! < y[i]!;
+  return false;
+};
 
 describe("the loss-scale pick weighed against the findings it leaves", () => {
   it("deep-relu-glorot: the centre 2^17 leaves failing gradient findings, and the pick moves to the scale that leaves the fewest", () => {

@@ -98,13 +98,13 @@ describe("lossScaleAnswer", () => {
     expect(answer.sentences[0]).toMatch(/^1 \(no scaling\) lies in the binary16 window/);
     expect(answer.sentences.join(" ")).not.toMatch(/need no loss scale/);
     const centre = answer.window.pickLog2!;
-    const none = { fails: 0, atRisk: 0, overflowSide: 0 };
+    const none = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
     // judged: 1 leaves nothing, as the pick does
     const asGood = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: none });
     expect(asGood.needed).toBe(false);
     expect(asGood.sentences[0]).toMatch(/need no loss scale/);
     // judged: 1 leaves 3 findings at risk the pick does not
-    const worse = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: { fails: 0, atRisk: 3, overflowSide: 0 } });
+    const worse = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: { fails: 0, atRisk: 3, overflowSide: 0, conditional: 0 } });
     expect(worse.needed).toBe(true);
     expect(worse.sentences.join(" ")).not.toMatch(/need no loss scale/);
     expect(worse.sentences.join(" ")).toContain("1 (no scaling) lies in the window too, but would leave 3 findings at risk");
