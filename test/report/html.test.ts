@@ -214,13 +214,14 @@ describe("the ledger's sentence says which size the factors add up to", () => {
     const { check } = await import("../../src/check.js");
     const { reportModel } = await import("../../src/report/report-from-check.js");
     const { parseSpec } = await import("../../src/spec/index.js");
-    // an invented 8-bit plan without scale factors: the output gradient shrinks as the loss falls to 0.05 and flushes
+    // an invented 8-bit plan without scale factors, at a loss scale of its own: the gradients shrink as the loss falls to
+    // 0.05 and flush
     const parsed = parseSpec(
       [
         "name: parcel-sorter",
         "input: { features: 128 }",
         "training: { batch: 256, loss: { kind: cross-entropy, classes: 12 }, horizon: { steps: 30000, final-loss: 0.05, weight-growth: 3 } }",
-        "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: none }",
+        "precision: { activations: e4m3, weights: e4m3, gradients: e5m2, scaling: none, loss-scale: 2 }",
         "layers: [{ type: dense, width: 128, init: he-normal }, relu, { type: dense, width: 12 }]",
       ].join("\n"),
       "parcel.yaml",
