@@ -152,11 +152,14 @@ export function renderExplainText(result: CheckResult, tensor: TensorCheck, opti
     const scaled = risk.statistics !== undefined && risk.statistics.factor !== tensor.statistics.factor ? ` (at loss scale ${formatValue(risk.statistics.factor)})` : "";
     // a format not holding the tensor has no findings, so "fits" would read as a verdict its numbers may contradict
     const head = `  ${risk.format}${scaled}: ${risk.judged ? verdictText(risk.verdict, style) : "not judged (it does not hold this tensor)"}; `;
+    // the shares below the range at one end of the horizon (the one whose flushed energy is worse), so that the flushed
+    // and the subnormal shares add up; overflow, headroom and footroom the worse of the two ends
+    const low = w.flushAt === "end" ? risk.end : risk.start;
     const numbers =
-      `flushed ${formatPercent(w.flushedFraction)} of nonzero elements, subnormal ${formatPercent(w.subnormalFraction)} ` +
-      `(rounding noise ${formatProbability(w.subnormalNoise)} of the squared norm), ` +
-      `flushed energy ${formatPercent(w.flushedEnergy)}, overflow ${formatProbability(w.overflowRisk)} per step, ` +
-      `headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}` +
+      `flushed ${formatPercent(low.flushedFraction)} of nonzero elements, subnormal ${formatPercent(low.subnormalFraction)} ` +
+      `(rounding noise ${formatProbability(low.subnormalNoise)} of the squared norm), ` +
+      `flushed energy ${formatPercent(low.flushedEnergy)} ${w.flushAt === "end" ? "at the end of the horizon" : "at the start of training"}; ` +
+      `overflow ${formatProbability(w.overflowRisk)} per step, headroom ${binadeWords(w.headroom)}, footroom ${binadeWords(w.footroom)}, the worse of the two ends` +
       (risk.scaleLog2.start !== 0 || risk.scaleLog2.end !== 0 ? `, ${scaleWords(result, risk.format)} 2^${risk.scaleLog2.start}→2^${risk.scaleLog2.end}` : "") +
       ".";
     out += wrap(numbers, width, head, "      ");

@@ -65,6 +65,38 @@ describe("renderExplainText", () => {
     expect(text).not.toContain("per-tensor scale");
   });
 
+  it("gives the flushed and subnormal shares at one end of the horizon, so they never add to more than all elements", () => {
+    // an invented scenario: a pollen-grain classifier over 30000 species trained until the loss is tiny, whose logit
+    // gradient flushes most at the end and has most subnormal elements at the start
+    const confident = parseSpec(
+      [
+        "name: pollen-species",
+        "input: { features: 512 }",
+        "training:",
+        "  batch: 16",
+        "  loss: { kind: cross-entropy, classes: 30000, reduction: sum }",
+        "  horizon: { steps: 100000, final-loss: 0.0001, weight-growth: 3 }",
+        "precision: { activations: binary16, weights: binary16, gradients: binary16 }",
+        "layers:",
+        "  - { type: dense, width: 1024, init: he-normal }",
+        "  - relu",
+        "  - { type: dense, width: 30000, init: { kind: normal, std: 0.05 } }",
+      ].join("\n"),
+      "pollen-species.yaml",
+    );
+    if (!confident.ok) throw new Error("the pollen spec does not parse");
+    const judged = check(confident.spec, { lossScale: 32 });
+    const tensor = judged.tensors.find((t) => t.id === "dense-2/activation-gradient")!;
+    const risk = tensor.risks[0]!;
+    // the worst of each share taken apart mixes the two ends: together more than every element (the case to avoid)
+    expect(risk.worst.flushedFraction + risk.worst.subnormalFraction).toBeGreaterThan(1);
+    const line = renderExplainText(judged, tensor, { width: 1000 }).split("\n").find((l) => l.startsWith("  binary16"))!;
+    const [flushed, subnormal] = [...line.matchAll(/(?:flushed|subnormal) ([<>]?[\d.]+)%/g)].map((m) => Number(m[1]!.replace(/[<>]/, "")) / 100);
+    // shares of one tensor's elements at one moment: flushed and subnormal are disjoint, so they add to at most 1
+    expect(flushed! + subnormal!).toBeLessThanOrEqual(1.001);
+    expect(line).toContain(risk.worst.flushAt === "end" ? "at the end of the horizon" : "at the start of training");
+  });
+
   it("writes a running total that rounds to zero as 0.00, not -0.00", () => {
     const tensor = result.tensors.find((t) => t.id === "relu-1/activation")!;
     // an embedding multiplier then a norm that undoes it, leaving -1e-4 binades
