@@ -9,7 +9,7 @@ import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
-import { checkedFormats, judgePrediction, planFor, worseVerdict, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { checkedFormats, judgePrediction, planFor, worseVerdict, type AppliedLossScale, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence } from "./risk/words.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
@@ -127,6 +127,7 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   answers = weighed.answers;
   // a pick moved: the gradients are judged again at it (a given scale is judged as it was)
   if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) judged = judgeAtPicks();
+  judged = withSearchedWindows(judged, plan, answers);
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards
     .filter((h) => h.findings.some((f) => f.format === plan.optimizerStates))
@@ -320,6 +321,27 @@ export function unscaledReason(plan: PrecisionPlan): UnscaledReason | null {
     return { kind: "scale-factors", sentence: `gradients are held in ${name} with per-${plan.scaling} scale factors` };
   }
   return null;
+}
+
+/**
+ * The result with the window searched for each given scale's gradients beside it: a scale the plan or the caller gives
+ * is judged as given, but the window was searched all the same (to say whether the scale lies in it), and `window`
+ * appears wherever headroom searched (README, `lossScale`).
+ */
+function withSearchedWindows(judged: CheckResult, plan: PrecisionPlan, answers: readonly LossScaleAnswer[]): CheckResult {
+  if (answers.length === 0) return judged;
+  const withWindow = (scale: AppliedLossScale, format: FormatName): AppliedLossScale => {
+    if (scale.window !== undefined || (scale.origin !== "plan" && scale.origin !== "option")) return scale;
+    const gradients = planFor(plan, format).gradients;
+    const answer = answers.find((a) => a.format === gradients);
+    return answer === undefined ? scale : { ...scale, window: windowSummary(answer) };
+  };
+  const first = judged.formats[0];
+  return {
+    ...judged,
+    lossScale: first === undefined ? judged.lossScale : withWindow(judged.lossScale, first.format),
+    formats: judged.formats.map((f) => (f.lossScale === undefined ? f : { ...f, lossScale: withWindow(f.lossScale, f.format) })),
+  };
 }
 
 function windowSummary(answer: LossScaleAnswer): LossScaleWindowSummary {

@@ -89,6 +89,20 @@ function normals(seed: number): () => number {
   return () => Math.sqrt(-2 * Math.log(uniform())) * Math.cos(2 * Math.PI * uniform());
 }
 
+describe("the window beside a given scale", () => {
+  it("a scale given by the caller or the plan keeps the window searched for it in the result (README, lossScale)", () => {
+    const searched = check(SUMMED).lossScale;
+    expect(searched.origin).toBe("recommended");
+    const given = check(SUMMED, { lossScale: 1 }).lossScale;
+    expect(given).toMatchObject({ value: 1, origin: "option" });
+    // the same window the check searches when no scale is given, its pick the one headroom recommends
+    expect(given.window).toEqual(searched.window);
+    const planned = check({ ...SUMMED, precision: { ...SUMMED.precision, lossScale: 2 } }).lossScale;
+    expect(planned).toMatchObject({ value: 2, origin: "plan" });
+    expect(planned.window).toEqual(searched.window);
+  });
+});
+
 describe("the loss's own logit gradient is judged by the share of its squared norm flushed", () => {
   it("a confident softmax's wrong-class gradients: most elements flush, a negligible share of the squared norm does", () => {
     // Outside the project: one row of wrong-class gradients p_j = (1 − p_y)·softmax(z)_j over 29999 classes, logits

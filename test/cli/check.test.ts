@@ -197,7 +197,8 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     // the check's own line says "judged with the recommended 2^-22 = 2.38e-7" for a scale a user may want to pass back
     const power = runCli(["check", "--json", "--loss-scale", "2^-22", "specs/deep-relu-he.yaml"]);
     expect(power.stderr).toBe("");
-    expect((JSON.parse(power.stdout) as { lossScale: { value: number; origin: string } }).lossScale).toEqual({ value: 2 ** -22, origin: "option" });
+    // the window searched for the gradients stays beside the given scale (README, lossScale)
+    expect((JSON.parse(power.stdout) as { lossScale: { value: number; origin: string } }).lossScale).toMatchObject({ value: 2 ** -22, origin: "option", window: { format: "binary16" } });
     const decimal = runCli(["check", "--json", "--loss-scale", String(2 ** -22), "specs/deep-relu-he.yaml"]);
     expect(power.stdout).toBe(decimal.stdout);
     // the same bounds: binary32's normal range 2^-126 to 2^127 (IEEE 754-2019 Table 3.5)
@@ -217,9 +218,9 @@ describe("headroom check input errors: exit code 2, one line each, no stack trac
     const good = runCli(["check", "--json", "--loss-scale", "0.5", "--vary", "training.batch=4,64", "specs/deep-relu-he.yaml"]);
     expect(good.stderr).toBe("");
     const rows = JSON.parse(good.stdout) as { variant: string; result: { lossScale: { value: number; origin: string } } }[];
-    expect(rows.map((row) => [row.variant, row.result.lossScale])).toEqual([
-      ["training.batch=4", { value: 0.5, origin: "option" }],
-      ["training.batch=64", { value: 0.5, origin: "option" }],
+    expect(rows.map((row) => [row.variant, row.result.lossScale.value, row.result.lossScale.origin])).toEqual([
+      ["training.batch=4", 0.5, "option"],
+      ["training.batch=64", 0.5, "option"],
     ]);
   });
 });
