@@ -7,7 +7,7 @@
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
-import { fmt, maybeWeight, textOf } from "../ops/common.js";
+import { fmt, initSource, maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
@@ -581,7 +581,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   const init = w.init;
   const constant = w.distribution === "constant";
   const rule = (): string => `${init === undefined ? (constant ? "constant gain" : "zero-initialised") : `${init.kind} initialisation`}: var = ${fmt(variance)}`;
-  return { layer, factor: { ratio: rms * rms, rule, source: "InitSpec variance rules (He et al. 2015; Glorot & Bengio 2010)" }, parent: null };
+  return { layer, factor: { ratio: rms * rms, rule, source: initSource(init) }, parent: null };
 }
 
 const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);

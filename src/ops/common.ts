@@ -1,5 +1,6 @@
 /** Helpers shared by the analytic rules of several layer families. */
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
+import type { InitSpec } from "../spec/types.js";
 import type { Curvature, Factor, Gradient, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
 
 /** Sources cited by more than one rule. */
@@ -56,6 +57,30 @@ export function maybeWeight(layer: GraphLayer, name: string): GraphWeight | unde
  * number headroom prints (1.638e4, not toExponential's 1.638e+4).
  * @example fmt(16384) // => "1.638e4"
  */
+/**
+ * The source of an initialisation's variance rule, as the ledger cites it: the paper that gives the rule of that kind,
+ * or what the spec gives for a fixed scale.
+ */
+export function initSource(init: InitSpec | undefined): string {
+  switch (init?.kind) {
+    case "he":
+      return "He et al. 2015, Delving Deep into Rectifiers: var = gain²·2/fan-in";
+    case "glorot":
+      return "Glorot & Bengio 2010: var = gain²·2/(fan-in + fan-out)";
+    case "lecun":
+      return "LeCun et al. 1998, Efficient BackProp: var = gain²/fan-in";
+    case "orthogonal":
+      // from memory: an orthogonal matrix's rows and columns have unit norm, so its entries have variance 1/max(n, m)
+      return "Saxe et al. 2014 (orthogonal matrices): var = gain²/max(fan-in, fan-out)";
+    case "normal":
+      return "the spec's standard deviation: var = (gain·std)²";
+    case "uniform":
+      return "uniform on [−limit, limit]: var = (gain·limit)²/3";
+    default:
+      return "the spec's initial value";
+  }
+}
+
 export function fmt(value: number): string {
   if (value === 0 || !Number.isFinite(value)) return String(value);
   const a = Math.abs(value);

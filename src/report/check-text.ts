@@ -396,7 +396,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
     const verdict = verdictText(format.verdict, style) + " ".repeat(Math.max(0, 7 - VERDICT_WORDS[format.verdict].length));
     out +=
       `  ${format.format.padEnd(formatWidth)}  ${verdict}  ` +
-      style.role("muted", `${format.planned ? "holds" : "in place of the plan's formats, holds"} ${holds || "nothing"}; ${format.tensorsJudged} ${format.tensorsJudged === 1 ? "tensor" : "tensors"}`) +
+      style.role("muted", `${format.planned ? "holds" : "in place of the plan's formats, holds"} ${holds || "nothing"}; ${judgedInFormat(result, format)}`) +
       "\n";
     const shown = format.reasons.slice(0, 5);
     for (const reason of shown) out += wrap(reason, width, "    - ", "      ");
@@ -462,4 +462,14 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
   }
   out += "\n" + wrap(result.caution, width, "", "");
   return out;
+}
+
+// how many tensors a format judges; a format holding no stored tensor (binary32 for the optimizer states) says what is
+// judged in it instead, so "0 tensors" does not read as a check that judged nothing
+function judgedInFormat(result: CheckResult, format: CheckResult["formats"][number]): string {
+  if (format.tensorsJudged > 0) return `${format.tensorsJudged} ${format.tensorsJudged === 1 ? "tensor" : "tensors"}`;
+  let operations = 0;
+  for (const h of result.hazards) if (h.evaluations.some((e) => e.format === format.format)) operations++;
+  if (operations === 0) return "no stored tensor or operation judged in it";
+  return `no stored tensor; ${operations} ${operations === 1 ? "operation" : "operations"} judged in it`;
 }

@@ -187,7 +187,7 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
       input.zeroFraction = share * k >= 1 ? output.zeroFraction : 1 - share * k;
       return {
         input,
-        factors: ctx.ledger ? [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${fmt(share * k)} gradients`, AVERAGE_SOURCE)] : NO_FACTORS,
+        factors: ctx.ledger ? [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${coveringWords(share * k)}`, AVERAGE_SOURCE)] : NO_FACTORS,
         inner: [],
         weightGradients: [],
       };
@@ -418,4 +418,10 @@ export function maxOfShared(k: number, shared: number, rectified: boolean, slope
   const result = { mean, cross };
   sharedCache.set(key, result);
   return result;
+}
+
+// the output gradients an average pool passes back to one input: one where the windows tile the input, else as many
+// windows as cover an input on average
+function coveringWords(windows: number): string {
+  return windows === 1 ? "the one output gradient whose window covers it" : `each of the ${fmt(windows)} output gradients whose windows cover it, on average`;
 }
