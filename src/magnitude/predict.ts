@@ -270,7 +270,12 @@ class Phase {
     const input = profileOf(h.input, h.inputElements);
     const out = h.output === undefined ? undefined : h.output === output && outputElements === elements ? profile : profileOf(h.output, outputElements);
     if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, out);
-    // every site is created whole, in one key order (judge.ts's trainingSites too), so its readers see one layout
+    this.opSite(layer, h, input, out, undefined, undefined);
+  }
+
+  // a layer's sum as a site; every site is created whole, in one key order (judge.ts's trainingSites too), so its readers
+  // see one layout
+  private opSite(layer: GraphLayer, h: OpHazard, input: MagnitudeProfile, output: MagnitudeProfile | undefined, tensor: string | undefined, gradient: true | undefined): void {
     this.site({
       kind: h.kind,
       layer: layer.name,
@@ -279,9 +284,10 @@ class Phase {
       guarded: h.guarded,
       constant: undefined,
       detail: this.build ? textOf(h.detail) : "",
-      output: out,
+      output,
       end: undefined,
-      tensor: undefined,
+      tensor,
+      gradient,
     });
   }
 
@@ -518,19 +524,7 @@ class Phase {
     }
     const input = profileOf(h.input, h.inputElements);
     if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, output, true);
-    this.site({
-      kind: h.kind,
-      layer: layer.name,
-      input,
-      terms: h.terms,
-      guarded: h.guarded,
-      constant: undefined,
-      detail: this.build ? textOf(h.detail) : "",
-      output,
-      end: undefined,
-      tensor: this.build && makes !== "input" ? prefix + makes : undefined,
-      gradient: true,
-    });
+    this.opSite(layer, h, input, output, this.build && makes !== "input" ? prefix + makes : undefined, true);
   }
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
@@ -549,6 +543,7 @@ class Phase {
       output,
       end: undefined,
       tensor: this.build ? id : undefined,
+      gradient: undefined,
     });
   }
 }
