@@ -947,6 +947,7 @@ export function trainingSites(
         output: undefined,
         end: undefined,
         tensor: undefined,
+        gradient: undefined,
         ...(averaged !== undefined && averaged > 1 ? { averaged } : {}),
       });
     }
@@ -968,6 +969,7 @@ export function trainingSites(
         output: undefined,
         end: undefined,
         tensor: undefined,
+        gradient: undefined,
       });
     }
   }
@@ -989,6 +991,7 @@ export function trainingSites(
         output: undefined,
         end: undefined,
         tensor: undefined,
+        gradient: undefined,
       });
     }
   }
@@ -1015,6 +1018,7 @@ export function trainingSites(
         // gradients at each side (src/risk/hazards.ts)
         end: undefined,
         tensor: undefined,
+        gradient: undefined,
       });
     }
     if (!hasSite(prediction.hazards, "optimizer-second-moment")) {
@@ -1029,6 +1033,7 @@ export function trainingSites(
         output: undefined,
         end: undefined,
         tensor: undefined,
+        gradient: undefined,
       });
     }
   }
