@@ -303,8 +303,9 @@ export function diagonalPullback(m: Curvature, onDiagonal: number, offDiagonal: 
 
 /**
  * What a pulled-back curvature keeps of the one above it besides its statistics: whether it is indefinite and its
- * tangent excess (Curvature.tangentExcess). Dense layers and pointwise maps keep them; the families that build their
- * own matrix (norms, flatten, attention, residual sums) start the excess again at 1.
+ * tangent marks (Curvature.tangentExcess, tangentAbove, tangentAlong). Dense layers and pointwise maps keep them; a
+ * residual sum works them out for its input where it can follow its branch (src/ops/residual/analytic.ts blockMarks);
+ * the families that build their own matrix (norms, flatten, attention, other residual sums) start again at 1.
  */
 export function keepMarks(from: Curvature, to: Curvature): void {
   if (from.indefinite === true) to.indefinite = true;

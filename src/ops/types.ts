@@ -218,8 +218,9 @@ export interface Curvature {
    * (Cauchy–Schwarz), so the statistics above are already scaled by min(1, 1/tangentExcess) (own algebra). The first
    * activation above h sees the tangent as its own input (φ'(u)·u against φ(u)); those further up are taken as seeing
    * it independent of their input, by the mean-field rule (χ against the output's gain), whose product is
-   * `tangentAbove`. Dense layers and pointwise maps carry it; norms, flattens, attention and residual sums build a new
-   * matrix, below which it starts again at 1 (src/ops/common.ts keepMarks)
+   * `tangentAbove`. Dense layers and pointwise maps carry it, a residual sum whose branch it can follow works it out
+   * for its input (blockMarks); norms, flattens, attention and other residual sums build a new matrix, below which it
+   * starts again at 1 (src/ops/common.ts keepMarks)
    */
   tangentExcess?: number;
   /** the product of E[φ'²]·E[u²]/E[φ²] over the activations between this tensor and the loss; absent: 1 */
