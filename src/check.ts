@@ -11,7 +11,7 @@ import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
 import { checkedFormats, judgePrediction, planFor, worseVerdict, type AppliedLossScale, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
-import { notCountedSentence } from "./risk/words.js";
+import { notCountedSentence, scaleWords } from "./risk/words.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
 import { scaledFindings, weighPick } from "./scale/pick.js";
 import { loadSpec, positionIssues, type SpecIssue, type SpecPosition } from "./spec/index.js";
@@ -86,7 +86,24 @@ export interface UnscaledReason {
  */
 export type LossScaleItem =
   | { format: FormatName; status: "window" | "empty"; answer: LossScaleAnswer }
-  | { format: FormatName; status: "not-needed"; reason: UnscaledReason };
+  | { format: FormatName; status: "not-needed"; reason: UnscaledReason; flushedSums?: FlushedSums };
+
+/**
+ * Backward sums that a loss scale would lift though the gradients need none: the plan accumulates in a format of
+ * binary16's narrow range (bfloat16 gradients with `accumulate: binary16`), and sums judged there lose their terms'
+ * squared norm below its flush bound. No window is searched for sums held in the accumulate format, so a "not needed"
+ * alone would contradict their remedy.
+ */
+export interface FlushedSums {
+  /** the accumulate format the sums flush in */
+  format: FormatName;
+  /** how many operations (backward sums) flush there, at risk or failing */
+  operations: number;
+  /** the loss scale they were judged at */
+  lossScale: number;
+  /** the caveat as a clause, e.g. "72 backward sums accumulated in binary16 flush part of their terms at loss scale 1: …" */
+  sentence: string;
+}
 
 /** Options of {@link check}: those of the judgement, plus the loss-scale answer's. */
 export interface CheckAnswerOptions extends CheckOptions {
@@ -248,10 +265,10 @@ function lossScaleItems(judged: CheckResult, plan: PrecisionPlan, answers: reado
   for (const format of judged.formats) {
     if (!format.holds.includes("gradients")) continue;
     const answer = answers.find((a) => a.format === format.format);
-    items.push(answer === undefined ? unscaledItem(planFor(plan, format.format)) : answerItem(answer));
+    items.push(answer === undefined ? unscaledItem(planFor(plan, format.format), judged) : answerItem(answer));
   }
   for (const answer of answers) if (!items.some((item) => item.status !== "not-needed" && item.answer === answer)) items.push(answerItem(answer));
-  if (items.length === 0) items.push(unscaledItem(plan));
+  if (items.length === 0) items.push(unscaledItem(plan, judged));
   return items;
 }
 
@@ -261,11 +278,37 @@ function answerItem(answer: LossScaleAnswer): LossScaleItem {
 }
 
 // a plan whose gradients need a scale always has an answer (lossScaleAnswers searched one for every such judged plan)
-function unscaledItem(plan: PrecisionPlan): LossScaleItem {
+function unscaledItem(plan: PrecisionPlan, judged: CheckResult): LossScaleItem {
   const reason = unscaledReason(plan);
   if (reason === null) throw new Error(`internal: ${plan.gradients} gradients need a loss scale but have no answer`);
-  return { format: plan.gradients, status: "not-needed", reason };
+  const flushedSums = flushedSumsOf(plan, judged);
+  return flushedSums === undefined ? { format: plan.gradients, status: "not-needed", reason } : { format: plan.gradients, status: "not-needed", reason, flushedSums };
 }
+
+/**
+ * The backward sums of a plan whose gradients need no scale that flush in its accumulate format, when that format
+ * would need one (binary16, unscaled 8-bit: the rule of {@link needsLossScale} applied to it); undefined when none do.
+ */
+function flushedSumsOf(plan: PrecisionPlan, judged: CheckResult): FlushedSums | undefined {
+  const format = plan.accumulate;
+  if (!needsLossScale({ ...plan, gradients: format })) return undefined;
+  let operations = 0;
+  for (const hazard of judged.hazards) {
+    if (hazard.evaluations.some((e) => e.format === format && e.heldIn === "accumulate" && e.measure === "flushed-energy" && e.verdict !== "fits")) operations += 1;
+  }
+  if (operations === 0) return undefined;
+  const lossScale = (judged.formats.find((f) => f.format === format)?.lossScale ?? judged.lossScale).value;
+  const sums = operations === 1 ? "1 backward sum accumulated" : `${operations} backward sums accumulated`;
+  return {
+    format,
+    operations,
+    lossScale,
+    sentence:
+      `but ${sums} in ${format} flush${operations === 1 ? "es" : ""} part of ${operations === 1 ? "its" : "their"} terms at loss scale ${scaleWords(lossScale)} ` +
+      `(see the operation hazards): accumulate in binary32, or give a loss scale that lifts them (no window is searched for sums held in the accumulate format)`,
+  };
+}
+
 
 /**
  * The loss-scale answers for the formats judged: one per gradient format that needs a scale under a judged format's

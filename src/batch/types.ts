@@ -1,4 +1,4 @@
-import type { UnscaledReason } from "../check.js";
+import type { FlushedSums, UnscaledReason } from "../check.js";
 
 /**
  * The plain data of a batch run: one row per spec (or per variant of a spec), summarised from a
@@ -24,7 +24,7 @@ export type LossScaleSummary =
    * format with scale factors; `reason` says which, as the check's `lossScales[].reason` does (absent from rows that do
    * not give it)
    */
-  | { status: "not-needed"; reason?: UnscaledReason }
+  | { status: "not-needed"; reason?: UnscaledReason; flushedSums?: FlushedSums }
   /** the check did not evaluate a loss scale */
   | { status: "not-evaluated" };
 

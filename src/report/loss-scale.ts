@@ -10,7 +10,11 @@ import { formatPowerOfTwo } from "./number.js";
 
 /** A check's loss-scale item in a row's terms: the window's exponents, the empty window's first sentence, the reason. */
 export function itemSummary(item: LossScaleItem): FormatLossScale {
-  if (item.status === "not-needed") return { format: item.format, status: "not-needed", reason: item.reason };
+  if (item.status === "not-needed") {
+    return item.flushedSums === undefined
+      ? { format: item.format, status: "not-needed", reason: item.reason }
+      : { format: item.format, status: "not-needed", reason: item.reason, flushedSums: item.flushedSums };
+  }
   const w = item.answer.window;
   if (item.status === "window" && w.pickLog2 !== null && w.lowestLog2 !== null && w.highestLog2 !== null) {
     return { format: item.format, status: "window", pickLog2: w.pickLog2, lowestLog2: w.lowestLog2, highestLog2: w.highestLog2 };
@@ -62,7 +66,10 @@ export function lossScaleClause(lossScale: LossScaleSummary): string {
     case "empty":
       return "no static scale serves the whole horizon";
     case "not-needed":
-      return lossScale.reason === undefined ? "not needed" : `not needed (${lossScale.reason.sentence})`;
+    {
+      const head = lossScale.reason === undefined ? "not needed" : `not needed (${lossScale.reason.sentence})`;
+      return lossScale.flushedSums === undefined ? head : `${head}; ${lossScale.flushedSums.sentence}`;
+    }
     case "not-evaluated":
       return "not evaluated";
   }

@@ -2,6 +2,7 @@ import { readFileSync } from "node:fs";
 import { describe, expect, it } from "vitest";
 import { check, needsLossScale, unscaledReason, type CheckAnswer, type LossScaleItem } from "../../src/check.js";
 import { parseSpec } from "../../src/spec/index.js";
+import { renderCheckText } from "../../src/report/check-text.js";
 import type { NetworkSpec, PrecisionPlan } from "../../src/spec/types.js";
 
 // `CheckAnswer.lossScales`: one item per gradient format the check speaks about, worked out once in src/check.ts.
@@ -128,5 +129,46 @@ describe("CheckAnswer.lossScales", () => {
     const result = check(spec, { formats: ["e5m2"] });
     expect(result.lossScales.map((item) => [item.format, item.status === "not-needed" ? item.reason.kind : "answer"])).toEqual([["e5m2", "scale-factors"]]);
     expect(result.lossScaleAnswer).toBeNull();
+  });
+});
+
+describe("a not-needed item beside backward sums that flush in a narrow accumulate format", () => {
+  // bfloat16 gradients need no scale (binary32's exponent range), but sums accumulated in binary16 round terms below
+  // half its smallest subnormal, 2^-25 ≈ 2.98e-8, to zero (IEEE 754-2019 Table 3.5: binary16 emin −14, p 11;
+  // round to nearest): a loss scale would lift those terms, so "not needed" alone would contradict their remedy
+  const mixed = withPlan({ activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", accumulate: "binary16" });
+
+  function flushingSums(result: CheckAnswer): number {
+    return result.hazards.filter((h) =>
+      h.evaluations.some((e) => e.format === "binary16" && e.heldIn === "accumulate" && e.measure === "flushed-energy" && e.verdict !== "fits"),
+    ).length;
+  }
+
+  it("the item names the accumulate format, the count of such sums and the scale they were judged at", () => {
+    const result = check(mixed);
+    const flushing = flushingSums(result);
+    expect(flushing).toBeGreaterThan(0);
+    const item = result.lossScales[0]!;
+    expect(item.status).toBe("not-needed");
+    if (item.status !== "not-needed") return;
+    expect(item.flushedSums).toMatchObject({ format: "binary16", operations: flushing, lossScale: 1 });
+    // each counted sum's own remedy names a larger loss scale, which the item no longer contradicts
+    const remedies = result.hazards.flatMap((h) => h.findings).filter((f) => f.kind === "gradient-energy-flushed" && f.format === "binary16");
+    expect(remedies.length).toBeGreaterThan(0);
+    for (const f of remedies) expect(f.sentence).toContain("or a larger loss scale");
+    expect(item.flushedSums?.sentence).toContain(`${flushing === 1 ? "1 backward sum" : `${flushing} backward sums`} accumulated in binary16`);
+    expect(renderCheckText(result, { width: 1000 })).toMatch(/not needed \(gradients are held in bfloat16, which has binary32's exponent range\); but \d+ backward sums?\s+accumulated/);
+  });
+
+  it("no caveat when the sums are accumulated in binary32, or when nothing flushes in binary16", () => {
+    const wide = check(withPlan({ activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", accumulate: "binary32" }));
+    const item = wide.lossScales[0]!;
+    expect(item.status === "not-needed" && item.flushedSums).toBe(undefined);
+    expect(JSON.stringify(wide.lossScales)).not.toContain("flushedSums");
+    // deep-relu-he keeps its gradients near 1 (He et al. 2015): no binary16 sum flushes
+    const he = load("specs/deep-relu-he.yaml");
+    const stable = check({ ...he, precision: { ...he.precision, gradients: "bfloat16", activations: "bfloat16", weights: "bfloat16", accumulate: "binary16" } });
+    expect(flushingSums(stable)).toBe(0);
+    expect(stable.lossScales.every((i) => i.status !== "not-needed" || i.flushedSums === undefined)).toBe(true);
   });
 });
