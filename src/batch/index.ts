@@ -11,6 +11,6 @@ export type { EvaluateHooks, SpecTask, TaskResult } from "./evaluate.js";
 export { planBatch, runBatch, DEFAULT_WORKER_URL } from "./run.js";
 export type { RunBatchOptions } from "./run.js";
 export { batchExitCode } from "./types.js";
-export type { BatchRow, ErrorPosition, FormatLossScale, LossScaleSummary, RiskMeasure, RowError, SpecSummary, SummaryVerdict, ValueScope, WorstSummary } from "./types.js";
+export type { BatchRow, ErrorPosition, FormatLossScale, JudgedLossScale, LossScaleSummary, RiskMeasure, RowError, SpecSummary, SummaryVerdict, ValueScope, WorstSummary } from "./types.js";
 export { batchCheck, nodePathHost } from "./files.js";
 export type { BatchCheckOptions } from "./files.js";

@@ -31,6 +31,22 @@ export type LossScaleSummary =
 /** One gradient format's loss-scale answer in a row: the format, then the fields of its summary. */
 export type FormatLossScale = { format: string } & Exclude<LossScaleSummary, { status: "not-evaluated" }>;
 
+/**
+ * The loss scale the check judged the gradients and the loss at (the check's `lossScale`: that of the first format
+ * judged), and where it lies against the window searched for the same gradients (check's "2^24 (from the plan), 15
+ * binades above the window").
+ */
+export interface JudgedLossScale {
+  /** the scale, S */
+  value: number;
+  /** plan: the spec's plan; option: the caller's; recommended: the window's pick; none: 1 (no scale needed, or none fits) */
+  origin: "plan" | "option" | "recommended" | "none";
+  /** inside, above or below the window searched for the same gradients; null when none was searched or it is empty */
+  position: "inside" | "above" | "below" | null;
+  /** binades from log2 S to the window's nearer edge: 0 inside, null when `position` is null */
+  binadesOutside: number | null;
+}
+
 /** The worst thing found in a spec: one tensor (or operation) in one format. */
 export interface WorstSummary {
   /** a tensor id such as `fc1/activation-gradient`, or the layer of an operation */
@@ -67,6 +83,11 @@ export interface SpecSummary {
    * `--format A,B`); empty when the check gave none. Absent from rows of judges that give only `lossScale`
    */
   lossScales?: FormatLossScale[];
+  /**
+   * the scale the check judged at, with its origin and place against the window (a spec's own 2^24, 15 binades above
+   * the window, beside a pick of 2^0). Absent from rows of judges that do not give it
+   */
+  judgedLossScale?: JudgedLossScale;
   /** null when nothing was found */
   worst: WorstSummary | null;
 }

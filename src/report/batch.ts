@@ -3,11 +3,11 @@
  * Strings in, strings out; the order of rows is the order given.
  */
 import { FORMAT_NAMES } from "../formats/names.js";
-import type { BatchRow, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
+import type { BatchRow, JudgedLossScale, LossScaleSummary, SpecSummary, SummaryVerdict, WorstSummary } from "../batch/types.js";
 import { renderCsv, type CsvField } from "./csv.js";
 import { controlEscape, escapeMarkdown, markdownList, markdownTable, type MarkdownCell } from "./markdown.js";
 import { lossScaleCells } from "./loss-scale.js";
-import { formatBinades, formatCompactCount, formatPercent, formatProbability, formatValue } from "./number.js";
+import { formatBinades, formatCompactCount, formatPercent, formatPowerOfTwo, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
 import { renderTable, type Cell, type TableColumn } from "./table.js";
 
@@ -77,15 +77,59 @@ export function worstRiskText(worst: Pick<WorstSummary, "label" | "value" | "mea
   return `${worst.label} ${formatRiskValue(worst)}${worst.scope === "network" ? " across the network (most in this layer)" : ""}`;
 }
 
+/** A loss scale as the cells write it: a power of two as 2^k, any other value as itself. */
+function scaleText(value: number): string {
+  const k = Math.log2(value);
+  return Number.isInteger(k) ? formatPowerOfTwo(k) : formatValue(value);
+}
+
+// how a judged scale's origin reads in its cell: check's header says "from the plan", "from the command line"
+const ORIGIN_WORDS = { plan: "plan", option: "given" } as const;
+
 /**
- * A row's loss-scale pick and window cells: the one answer's, or, when the check answered for several gradient formats
- * (`check --format A,B`), each format's joined by "; " and led by its name ("e5m2 2^13; bfloat16 not needed").
+ * The cell of a scale the plan or the caller gave: the scale, its origin and where it lies against the window searched
+ * for the same gradients, as check's header says it ("2^24 (plan, 15 binades above)"); a whole number of binades reads
+ * whole, the edges being whole exponents.
+ */
+function givenScaleCell(judged: JudgedLossScale & { origin: "plan" | "option" }): string {
+  const origin = ORIGIN_WORDS[judged.origin];
+  if (judged.position === null || judged.binadesOutside === null) return `${scaleText(judged.value)} (${origin})`;
+  if (judged.position === "inside") return `${scaleText(judged.value)} (${origin}, inside)`;
+  const n = judged.binadesOutside;
+  const binades = `${Number.isInteger(n) ? String(n) : formatBinades(n)} binade${n === 1 ? "" : "s"}`;
+  return `${scaleText(judged.value)} (${origin}, ${binades} ${judged.position})`;
+}
+
+/** A judged scale the plan or the caller gave, narrowed for {@link givenScaleCell}. */
+function givenScale(summary: SpecSummary): (JudgedLossScale & { origin: "plan" | "option" }) | undefined {
+  const judged = summary.judgedLossScale;
+  return judged !== undefined && (judged.origin === "plan" || judged.origin === "option") ? { ...judged, origin: judged.origin } : undefined;
+}
+
+/**
+ * A row's loss-scale and window cells: the one answer's, or, when the check answered for several gradient formats
+ * (`check --format A,B`), each format's joined by "; " and led by its name ("e5m2 2^13; bfloat16 not needed"). A scale
+ * the plan (or the caller) gives is the one judged, whatever the window: the loss-scale cell then says it, its origin
+ * and where it lies, and the window cell adds what headroom would pick ("2^-14..2^9, pick 2^0"), so a spec failing at
+ * its own scale does not read as failing at the pick.
  */
 function rowLossScaleCells(summary: SpecSummary): { pick: string; window: string } {
   const scales = summary.lossScales ?? [];
-  if (scales.length <= 1) return lossScaleCells(summary.lossScale);
-  const cells = scales.map((s) => ({ format: s.format, ...lossScaleCells(s) }));
-  return { pick: cells.map((c) => `${c.format} ${c.pick}`).join("; "), window: cells.map((c) => `${c.format} ${c.window}`).join("; ") };
+  const given = givenScale(summary);
+  const withPick = (cells: { pick: string; window: string }, lossScale: LossScaleSummary) =>
+    given !== undefined && lossScale.status === "window" ? `${cells.window}, pick ${cells.pick}` : cells.window;
+  if (scales.length <= 1) {
+    const cells = lossScaleCells(summary.lossScale);
+    if (given !== undefined) return { pick: givenScaleCell(given), window: withPick(cells, summary.lossScale) };
+    // the pick is what was judged: said so, beside the rows that judged a scale of their own
+    return summary.judgedLossScale?.origin === "recommended" && summary.lossScale.status === "window" ? { ...cells, pick: `${cells.pick} (pick)` } : cells;
+  }
+  const cells = scales.map((s) => ({ format: s.format, ...lossScaleCells(s), window: withPick(lossScaleCells(s), s) }));
+  // the place of a given scale is against the first format's window; beside several windows the cell says the scale alone
+  return {
+    pick: given === undefined ? cells.map((c) => `${c.format} ${c.pick}`).join("; ") : givenScaleCell({ ...given, position: null, binadesOutside: null }),
+    window: cells.map((c) => `${c.format} ${c.window}`).join("; "),
+  };
 }
 
 /**
@@ -249,6 +293,8 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
         formats: s.formats.map((f) => ({ format: f.format, verdict: f.verdict })),
         lossScale: s.lossScale,
         lossScales: s.lossScales ?? [],
+        // on rows whose judge gives it (every check's row)
+        ...(s.judgedLossScale !== undefined ? { judgedLossScale: s.judgedLossScale } : {}),
         worst: s.worst,
         // only on rows that have them, so the lines of other rows keep their bytes
         ...(row.warnings !== undefined ? { warnings: row.warnings } : {}),
@@ -264,7 +310,9 @@ export function renderBatchJsonl(rows: readonly BatchRow[]): string {
  * before it so they keep their places, gives every gradient format's (see {@link lossScalesCsvCell}). `error` gives an
  * error row's first problem (and a count of the others); `error_issues`, last for the same reason, every problem of
  * the spec, one `file:line:column: key.path: message` line each, LF between them inside the quoted field (RFC 4180 §2
- * rule 6); the error's message alone when it is not a spec's problems.
+ * rule 6); the error's message alone when it is not a spec's problems. `judged_loss_scale` to
+ * `judged_loss_scale_binades_outside`, after every column before them for the same reason, give the scale the check
+ * judged at (the row's `judgedLossScale`): its value, origin, place against the window and binades from its edge.
  */
 export const BATCH_CSV_HEADER = [
   "index",
@@ -288,6 +336,10 @@ export const BATCH_CSV_HEADER = [
   "loss_scales",
   "error_issues",
   "worst_scope",
+  "judged_loss_scale",
+  "judged_loss_scale_origin",
+  "judged_loss_scale_position",
+  "judged_loss_scale_binades_outside",
 ] as const;
 
 /** RFC 4180 CSV: a header, then one record per row, CRLF line ends; one column per known format. */
@@ -315,6 +367,10 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
         "",
         (row.error.issues?.map((issue) => issue.message) ?? [row.error.message]).join("\n"),
         "",
+        "",
+        "",
+        "",
+        "",
       ];
     }
     const s = row.summary;
@@ -339,6 +395,10 @@ export function renderBatchCsv(rows: readonly BatchRow[]): string {
       lossScalesCsvCell(s),
       "",
       s.worst?.scope ?? "",
+      s.judgedLossScale?.value ?? "",
+      s.judgedLossScale?.origin ?? "",
+      s.judgedLossScale?.position ?? "",
+      s.judgedLossScale?.binadesOutside ?? "",
     ];
   });
   return renderCsv(BATCH_CSV_HEADER, records);

@@ -3,7 +3,7 @@
  * findings worst first, the loss-scale window when the check has one, and the one-row summary a batch
  * shows. Pure; types only from the risk and batch modules.
  */
-import type { LossScaleSummary, RiskMeasure, SpecSummary, ValueScope, WorstSummary } from "../batch/types.js";
+import type { JudgedLossScale, LossScaleSummary, RiskMeasure, SpecSummary, ValueScope, WorstSummary } from "../batch/types.js";
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult, Finding, FindingKind } from "../risk/index.js";
 import type { PlanEntry } from "../risk/judge.js";
@@ -125,6 +125,20 @@ export function lossScaleOf(result: CheckResult | CheckAnswer): LossScaleSummary
   return summary;
 }
 
+/**
+ * The scale a check judged the gradients at (its `lossScale`) and where log2 S lies against the window searched for the
+ * same gradients, as check's header says it ("2^24 (from the plan), 15 binades above the window"): the window's edges
+ * are whole exponents, so a scale between them is inside, and one past an edge is that many binades from it.
+ */
+export function judgedLossScaleOf(result: CheckResult | CheckAnswer): JudgedLossScale {
+  const { value, origin, window } = result.lossScale;
+  if (window === undefined || window.empty || window.lowestLog2 === null || window.highestLog2 === null) return { value, origin, position: null, binadesOutside: null };
+  const k = Math.log2(value);
+  if (k > window.highestLog2) return { value, origin, position: "above", binadesOutside: k - window.highestLog2 };
+  if (k < window.lowestLog2) return { value, origin, position: "below", binadesOutside: window.lowestLog2 - k };
+  return { value, origin, position: "inside", binadesOutside: 0 };
+}
+
 /** One batch row's worth of a check result. */
 export function summarizeCheck(result: CheckResult | CheckAnswer): SpecSummary {
   return {
@@ -133,6 +147,7 @@ export function summarizeCheck(result: CheckResult | CheckAnswer): SpecSummary {
     formats: result.formats.map((format) => ({ format: format.format, verdict: format.verdict })),
     lossScale: lossScaleOf(result),
     lossScales: lossScaleSummaries(result),
+    judgedLossScale: judgedLossScaleOf(result),
     worst: worstOf(result),
   };
 }

@@ -83,7 +83,11 @@ describe("a batch row carries every problem of its spec, each at its file:line:c
     const json = JSON.parse(renderBatchJsonl(rows)) as { error: { issues: { position: { line: number } }[] } };
     expect(json.error.issues.map((issue) => issue.position.line)).toEqual([4, 8, 10]);
     const records = parseRfc4180(renderBatchCsv(rows));
-    expect(records[0]!.slice(-3)).toEqual(["loss_scales", "error_issues", "worst_scope"]);
+    const header = records[0]!;
+    const after = header.indexOf("loss_scales");
+    expect(header.slice(after, after + 3)).toEqual(["loss_scales", "error_issues", "worst_scope"]);
+    // the judged loss scale's columns, added later still, come after them all
+    expect(header.slice(after + 3)).toEqual(["judged_loss_scale", "judged_loss_scale_origin", "judged_loss_scale_position", "judged_loss_scale_binades_outside"]);
     const cell = records[1]![BATCH_CSV_HEADER.indexOf("error_issues")]!;
     expect(cell.split("\n").map((l) => l.split(":").slice(1, 3).join(":"))).toEqual(["4:10", "8:27", "10:20"]);
     // the first problem keeps its columns
