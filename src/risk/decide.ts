@@ -18,7 +18,7 @@ import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
 import { capWithin, farThreshold, overflowRiskOf } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
-import { noFindings, overflowFinding } from "./tensor-finding.js";
+import { NO_FINDINGS, overflowFinding } from "./tensor-finding.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and
@@ -168,7 +168,8 @@ function overflowDecided(side: Side, d: FormatDecision): number {
  * decided from bounds and the numbers past their bounds; null where that does not decide them (the tensor is then judged
  * from its numbers). `start` and `end` are the profiles after the loss-scale factor; `same` when they are one
  * distribution. For a format that holds the tensor, without scale factors, and a tensor that is not a probability row
- * (the caller's conditions); `decision` is the format's, made once for every tensor the format judges.
+ * (the caller's conditions); `decision` is the format's, made once for every tensor the format judges. No findings is
+ * the shared NO_FINDINGS (src/risk/tensor-finding.ts), which the caller copies where it hands the array out.
  */
 export function decidedFindings(
   tensor: TensorPrediction,
@@ -194,7 +195,7 @@ export function decidedFindings(
     // no overflow finding: the headroom's, unless both sides keep the headroom asked for
     if (!headroomDecided(last, d)) return null;
     if (!same && !headroomDecided(first, d)) return null;
-    return noFindings();
+    return NO_FINDINGS;
   }
   // a tie is told apart by the headroom (worseOf): judged from the numbers
   if (startRisk === endRisk && !same) return null;

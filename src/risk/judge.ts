@@ -38,8 +38,8 @@ import {
   type TensorStatistics,
 } from "./tensor.js";
 import { decidedFindings, FormatDecision } from "./decide.js";
-import { noFindings } from "./tensor-finding.js";
-import { CheckedRisk, CheckedTensor } from "./tensor-check.js";
+import { NO_FINDINGS } from "./tensor-finding.js";
+import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
@@ -460,9 +460,9 @@ export function judgeScaled(
       }
       continue;
     }
-    for (const risk of judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays).risks) {
-      if (risk.format !== format) continue;
-      for (const f of risk.findings) if (!visit(f, i, false)) return;
+    // the findings alone: the tensor's risk objects are not made
+    for (const f of CheckedTensor.findingsIn(judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays), format)) {
+      if (!visit(f, i, false)) return;
     }
   }
 }
@@ -557,22 +557,9 @@ function judgeTensors(
 ): TensorCheck[] {
   const tensors: TensorCheck[] = [];
   const arrays = storedArrays(predicted);
-  for (let i = 0; i < predicted.length; i++) {
-    const tensor = predicted[i] as TensorPrediction;
-    const check = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays, ledger);
-    tensors.push(check);
-    // each format's findings and count gathered here, in tensor order, rather than by a walk over every tensor per format
-    const risks = check.risks;
-    for (let j = 0; j < risks.length; j++) {
-      const risk = risks[j] as TensorCheckRisk;
-      let setting = settings[0] as FormatSetting;
-      for (let k = 1; setting.format !== risk.format && k < settings.length; k++) setting = settings[k] as FormatSetting;
-      const found = risk.findings;
-      for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
-      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
-      if (risk.judged) setting.tensorsJudged++;
-    }
-  }
+  // each format's findings and count gathered by judgeTensor, in tensor order, rather than by a walk over every tensor
+  // per format
+  for (let i = 0; i < predicted.length; i++) tensors.push(judgeTensor(predicted[i] as TensorPrediction, settings, lossScale, thresholds, everyFormat, arrays, ledger, true));
   return tensors;
 }
 
@@ -604,9 +591,6 @@ function withArrayMax(scaled: ScaledTensor, parts: readonly TensorPrediction[], 
   return { ...scaled, statistics: { ...scaled.statistics, arrayMax: { start, end } } };
 }
 
-// the format risks of the tensor being judged (its first entries), before they are copied out
-const RISKS: TensorCheckRisk[] = [];
-
 /**
  * One tensor in every judged format that holds it (every judged format with `everyFormat`). Its findings and verdicts
  * are decided here, by bounds where they decide (src/risk/decide.ts); its statistics and numbers are worked out when
@@ -621,7 +605,8 @@ function judgeTensor(
   everyFormat: boolean,
   arrays: Map<string, TensorPrediction[]> | null,
   ledger = false,
-): TensorCheck {
+  gather = false,
+): CheckedTensor {
   const parts = arrays?.get(tensor.id);
   // a part of a stored array is judged with the array's max, which its statistics carry: worked out here
   let scaled = parts === undefined ? undefined : withArrayMax(scaledTensor(tensor, lossScale, thresholds), parts, tensor, thresholds);
@@ -638,23 +623,22 @@ function judgeTensor(
   // FP32) as the scaled loss summed (lossScaleFactor); the loss-value hazard judges that value there too, and covers a
   // loss kept in the activation format
   const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
-  // gathered in RISKS and copied out at their exact length: the result keeps one such array per tensor, and one
-  // grown by push carries room for 17 elements
-  let count = 0;
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
     const judged = entryFormat(setting.evaluated, entry) === setting.format;
     if (!judged && !everyFormat) continue;
     const options = judged ? setting.held : setting.notHeld;
-    let risk: TensorCheckRisk;
+    // the risk's findings and verdict (its object is made when the tensor's risks are first read)
+    let found: readonly Finding[];
+    let riskVerdict: Verdict;
     if (setting.lossScale === lossScale || lossScaleFactor(tensor.role, setting.lossScale) === factor) {
       let findings: Finding[] | null = null;
       // the overflow probabilities deciding the findings worked out (−1: none), which the numbers then report
       let startOverflow = -1;
       let endOverflow = -1;
       if (!options.perTensorScaling) {
-        if (!judged) findings = noFindings();
+        if (!judged) findings = NO_FINDINGS;
         else if (bounded) {
           start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
           end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
@@ -664,22 +648,33 @@ function judgeTensor(
           endOverflow = decision.endOverflow;
         }
       }
-      risk =
-        findings !== null
-          ? new CheckedRisk(judged, worstVerdict(findings), findings, checked, setting.limits, options, startOverflow, endOverflow)
-          : scaledTensorRisk(tensor, (scaled ??= CheckedTensor.scaled(checked)), setting.limits, options);
+      if (findings !== null) {
+        riskVerdict = worstVerdict(findings);
+        CheckedTensor.addDecided(checked, judged, riskVerdict, findings, setting.limits, options, startOverflow, endOverflow);
+        found = findings;
+      } else {
+        const risk = scaledTensorRisk(tensor, (scaled ??= CheckedTensor.scaled(checked)), setting.limits, options);
+        CheckedTensor.addJudged(checked, risk);
+        riskVerdict = risk.verdict;
+        found = risk.findings;
+      }
     } else {
       if (other === undefined || other.statistics.factor !== setting.lossScale) {
         other = scaledTensor(tensor, setting.lossScale, thresholds);
         if (parts !== undefined) other = withArrayMax(other, parts, tensor, thresholds);
       }
-      risk = { ...scaledTensorRisk(tensor, other, setting.limits, options), statistics: other.statistics };
+      const risk: TensorCheckRisk = { ...scaledTensorRisk(tensor, other, setting.limits, options), statistics: other.statistics };
+      CheckedTensor.addJudged(checked, risk);
+      riskVerdict = risk.verdict;
+      found = risk.findings;
     }
-    RISKS[count++] = risk;
-    verdict = worseVerdict(verdict, risk.verdict);
+    verdict = worseVerdict(verdict, riskVerdict);
+    if (gather) {
+      for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
+      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
+      if (judged) setting.tensorsJudged++;
+    }
   }
-  // most tensors are held in one format: a literal of one is the smallest array
-  checked.risks = count === 1 ? [RISKS[0] as TensorCheckRisk] : RISKS.slice(0, count);
   checked.verdict = verdict;
   return checked;
 }

@@ -7,6 +7,10 @@
  * scaledTensorNumbers), so every value read, and JSON.stringify of the result, is what working them out at once gave:
  * the calls are pure, and their tables never depend on what was computed before.
  *
+ * A tensor's `risks` are made when first read too: a check gathers each format's findings from what it judged, and most
+ * tensors' risk objects are read by nobody but JSON (one array, one risk and its `scaleLog2` per format that holds the
+ * tensor, and three accessors, set up per object at a runtime call's cost, for each of 4,000 tensors).
+ *
  * They are the objects' own enumerable properties (accessors, in the documented order), so the result stays plain data
  * to every reader: JSON, `Object.keys`, a spread, a deep comparison and structuredClone read them as any other field.
  * A field assigned becomes a plain data field. The numbers are worked out from the prediction's profiles (the tensor's
@@ -27,6 +31,7 @@ import {
   type WorstRisk,
 } from "./tensor.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { NO_FINDINGS, noFindings } from "./tensor-finding.js";
 
 // An own enumerable accessor read through `read` (shared by every object, so they keep one layout); assigning the field
 // makes it a plain data field.
@@ -45,7 +50,8 @@ function lazyField<T extends object>(key: string, read: (target: T) => unknown):
 
 /**
  * A tensor of a check result ({@link TensorCheck}). Its `statistics` are worked out when first read, unless they were
- * given (a data field then).
+ * given (a data field then); its `risks` are made when first read from the risks the judge added ({@link addDecided},
+ * {@link addJudged}), the same objects the judge made before.
  */
 export class CheckedTensor implements TensorCheck {
   declare id: string;
@@ -67,6 +73,20 @@ export class CheckedTensor implements TensorCheck {
   #lossScale: number;
   #thresholds: RiskThresholds;
   #scaled: ScaledTensor | undefined;
+  // the risks added, made into the result's objects when `risks` is first read: the first in the fields below (most
+  // tensors are held in one format), the others in #more. #ready: a risk judged from its numbers (a complete object),
+  // else null and the first risk is a decided one: the arguments of its CheckedRisk
+  #count: number;
+  #ready: TensorCheckRisk | null;
+  #judged: boolean;
+  #riskVerdict: Verdict;
+  #findings: Finding[];
+  #limits: RangeLimits | null;
+  #options: TensorRiskOptions | null;
+  #startOverflow: number;
+  #endOverflow: number;
+  #more: AddedRisk[] | null;
+  #risks: TensorCheckRisk[] | null;
 
   /**
    * `scaled`: the tensor's scaled profiles and statistics when already worked out (else worked out when first read,
@@ -78,6 +98,17 @@ export class CheckedTensor implements TensorCheck {
     this.#lossScale = lossScale;
     this.#thresholds = thresholds;
     this.#scaled = scaled;
+    this.#count = 0;
+    this.#ready = null;
+    this.#judged = false;
+    this.#riskVerdict = "fits";
+    this.#findings = NO_FINDINGS;
+    this.#limits = null;
+    this.#options = null;
+    this.#startOverflow = -1;
+    this.#endOverflow = -1;
+    this.#more = null;
+    this.#risks = null;
     // the keys in the order of TensorCheck (README), `partOf` and `ledger` only where the result has always had them
     this.id = tensor.id;
     this.layer = tensor.layer;
@@ -93,8 +124,93 @@ export class CheckedTensor implements TensorCheck {
     if (ledger) this.ledger = tensor.ledger;
     if (scaled === undefined) Object.defineProperty(this, "statistics", STATISTICS);
     else this.statistics = scaled.statistics;
-    this.risks = NO_RISKS;
+    Object.defineProperty(this, "risks", RISKS);
     this.verdict = "fits";
+  }
+
+  /**
+   * Adds a risk whose findings were decided without its numbers (its `start`, `end` and `worst` worked out when first
+   * read; {@link CheckedRisk}'s arguments).
+   */
+  static addDecided(
+    tensor: CheckedTensor,
+    judged: boolean,
+    verdict: Verdict,
+    findings: Finding[],
+    limits: RangeLimits,
+    options: TensorRiskOptions,
+    startOverflow: number,
+    endOverflow: number,
+  ): void {
+    if (tensor.#count++ === 0) {
+      tensor.#judged = judged;
+      tensor.#riskVerdict = verdict;
+      tensor.#findings = findings;
+      tensor.#limits = limits;
+      tensor.#options = options;
+      tensor.#startOverflow = startOverflow;
+      tensor.#endOverflow = endOverflow;
+      return;
+    }
+    (tensor.#more ??= []).push({ ready: null, judged, verdict, findings, limits, options, startOverflow, endOverflow });
+  }
+
+  /** Adds a risk judged from its numbers, as it is. */
+  static addJudged(tensor: CheckedTensor, risk: TensorCheckRisk): void {
+    if (tensor.#count++ === 0) {
+      tensor.#ready = risk;
+      return;
+    }
+    (tensor.#more ??= []).push({ ready: risk, judged: false, verdict: "fits", findings: NO_FINDINGS, limits: null, options: null, startOverflow: -1, endOverflow: -1 });
+  }
+
+  /** The findings of the tensor's first risk in `format` (none when no risk is in it), without making the risks. */
+  static findingsIn(tensor: CheckedTensor, format: FormatName): readonly Finding[] {
+    const made = tensor.#risks;
+    if (made !== null) {
+      for (let i = 0; i < made.length; i++) if ((made[i] as TensorCheckRisk).format === format) return (made[i] as TensorCheckRisk).findings;
+      return NO_FINDINGS;
+    }
+    if (tensor.#count === 0) return NO_FINDINGS;
+    const ready = tensor.#ready;
+    if (ready !== null ? ready.format === format : (tensor.#limits as RangeLimits).format === format) return ready !== null ? ready.findings : tensor.#findings;
+    const more = tensor.#more;
+    if (more !== null) {
+      for (let i = 0; i < more.length; i++) {
+        const added = more[i] as AddedRisk;
+        if (added.ready !== null ? added.ready.format === format : (added.limits as RangeLimits).format === format) return added.ready !== null ? added.ready.findings : added.findings;
+      }
+    }
+    return NO_FINDINGS;
+  }
+
+  /** The tensor's risks, made once from those added, in the order they were added. */
+  static risks(tensor: CheckedTensor): TensorCheckRisk[] {
+    let risks = tensor.#risks;
+    if (risks !== null) return risks;
+    const more = tensor.#more;
+    if (tensor.#count === 0) risks = [];
+    else {
+      const first =
+        tensor.#ready ??
+        new CheckedRisk(tensor.#judged, tensor.#riskVerdict, ownFindings(tensor.#findings), tensor, tensor.#limits as RangeLimits, tensor.#options as TensorRiskOptions, tensor.#startOverflow, tensor.#endOverflow);
+      // most tensors are held in one format: a literal of one is the smallest array
+      risks = [first];
+      if (more !== null) {
+      for (let i = 0; i < more.length; i++) {
+        const added = more[i] as AddedRisk;
+          risks.push(
+            added.ready ?? new CheckedRisk(added.judged, added.verdict, ownFindings(added.findings), tensor, added.limits as RangeLimits, added.options as TensorRiskOptions, added.startOverflow, added.endOverflow),
+          );
+        }
+      }
+    }
+    tensor.#risks = risks;
+    // the arguments are not needed again
+    tensor.#ready = null;
+    tensor.#findings = NO_FINDINGS;
+    tensor.#more = null;
+    return risks;
   }
 
   /** The tensor's profiles after its loss-scale factor, with their statistics (worked out once). */
@@ -104,9 +220,24 @@ export class CheckedTensor implements TensorCheck {
 }
 
 const STATISTICS = lazyField<CheckedTensor>("statistics", (tensor) => CheckedTensor.scaled(tensor).statistics);
+const RISKS = lazyField<CheckedTensor>("risks", (tensor) => CheckedTensor.risks(tensor));
 
-// the placeholder of a tensor's risks until they are judged (never handed out: judgeTensor sets its own array)
-const NO_RISKS: TensorCheckRisk[] = [];
+/** A risk added after a tensor's first ({@link CheckedTensor.addDecided}, {@link CheckedTensor.addJudged}). */
+interface AddedRisk {
+  ready: TensorCheckRisk | null;
+  judged: boolean;
+  verdict: Verdict;
+  findings: Finding[];
+  limits: RangeLimits | null;
+  options: TensorRiskOptions | null;
+  startOverflow: number;
+  endOverflow: number;
+}
+
+// a risk's own findings array: the one it was decided with, or a fresh empty one for none
+function ownFindings(findings: Finding[]): Finding[] {
+  return findings === NO_FINDINGS ? noFindings() : findings;
+}
 
 /**
  * A tensor's risk in one format ({@link TensorCheckRisk}) whose findings were decided without its numbers: `start`, `end`

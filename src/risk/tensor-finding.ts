@@ -49,6 +49,12 @@ function afterSubject(limits: RangeLimits, severity: Exclude<Verdict, "fits">, v
   return words.text;
 }
 
+/**
+ * The findings of a decided risk with none, shared until the risk's object is made (src/risk/tensor-check.ts gives each
+ * risk made its own array then, by {@link noFindings}): never handed out, never written.
+ */
+export const NO_FINDINGS: Finding[] = [];
+
 /** A tensor's findings with none in them, from the one place every tensor's findings array is made. */
 export function noFindings(): Finding[] {
   return FOUND.slice(0, 0);

@@ -339,5 +339,24 @@ describe("a result whose numbers are worked out when first read", () => {
     tensor.risks[0]!.worst = worst;
     expect(tensor.risks[0]!.worst).toBe(worst);
     expect(Object.keys(tensor.risks[0]!)).toEqual(["format", "judged", "scaleLog2", "start", "end", "worst", "verdict", "findings"]);
+    // the risks, made when first read, are one array read as often as it is read, and an assigned one is kept
+    const other = result.tensors[2]!;
+    expect(other.risks).toBe(other.risks);
+    expect(other.risks[0]).toBe(other.risks[0]);
+    const risks = [{ ...other.risks[0]! }];
+    other.risks = risks;
+    expect(other.risks).toBe(risks);
+    expect(Object.keys(other)).toEqual(["id", "layer", "layerIndex", "family", "role", "slot", "shape", "source", "start", "end", "statistics", "risks", "verdict"]);
+  });
+
+  it("gives each tensor's risks their own findings arrays, and each format the findings its tensors' risks hold", () => {
+    const result = judgePrediction(spec, prediction, { ...options, lossScale: 2 ** 20, formats: [...options.formats] });
+    const arrays = result.tensors.flatMap((t) => t.risks.map((r) => r.findings));
+    expect(new Set(arrays).size).toBe(arrays.length);
+    for (const format of result.formats) {
+      const held = result.tensors.flatMap((t) => t.risks.filter((r) => r.format === format.format).flatMap((r) => r.findings));
+      expect(format.findings.filter((f) => f.source === "tensor")).toEqual(held);
+      expect(format.tensorsJudged).toBe(result.tensors.filter((t) => t.risks.some((r) => r.format === format.format && r.judged)).length);
+    }
   });
 });
