@@ -1170,9 +1170,9 @@ function useSentence(window: ScaleWindow, pow: (k: number) => string): string {
 
 /**
  * The sentences of a window that holds 1 (no scaling): those that open the answer, and those told after the weighing's.
- * "need no loss scale" is said only when 1 is the pick or, judged against the check's per-tensor thresholds, leaves no
- * more findings than the pick: the window's edges bound the whole model's overflow and each gradient's flushed energy
- * only, so 1 can lie inside it and still leave findings.
+ * "need no loss scale" is said only when 1 is the pick; "would also train unscaled" when, judged against the check's
+ * per-tensor thresholds, 1 leaves no more findings than another pick: the window's edges bound the whole model's
+ * overflow and each gradient's flushed energy only, so 1 can lie inside it and still leave findings.
  */
 function unscaledWindowSentences(
   window: ScaleWindow,
@@ -1214,7 +1214,8 @@ function unscaledWindowSentences(
           : `the pick is ${pow(pick)}`
         : `the pick ${pow(pick)} keeps ${binades(window.marginBelowOverflow!)} below the overflow edge, where 1 keeps only ${binades(window.highestLog2!)}`;
     const noMore = findingsTotal(unscaled) > 0 ? `, no more than ${pow(pick)}` : "";
-    return { first: [`${format} gradients need no loss scale: ${span}, 1 among them, and 1 (no scaling) leaves ${findingWords(unscaled)} ${on}${noMore}; ${tail}.`], after: [] };
+    // the pick is not 1, so the answer is that pick: 1 is told as a choice that also serves, not as "no scale needed"
+    return { first: [`${format} gradients would also train unscaled: ${span}, 1 among them, and 1 (no scaling) leaves ${findingWords(unscaled)} ${on}${noMore}; ${tail}, so it is the pick.`], after: [] };
   }
   return {
     first: [useSentence(window, pow)],

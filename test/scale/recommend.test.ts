@@ -87,7 +87,7 @@ describe("lossScaleAnswer", () => {
     expect(working[0]!.sentence).toMatch(/No spec key states a format for one tensor \(a plan sets one per role\): this is done in the training code/);
   });
 
-  it("says no scale is needed when S = 1 lies in the window only once 1 is judged to leave no more findings than the pick", () => {
+  it("says no scale is needed only when 1 is the pick, and that the gradients would also train unscaled when 1 leaves no more findings than another pick", () => {
     // rms 1e-2 with half a binade of spread: far from binary16's largest finite 65504 and its subnormals below 2^-14
     // (IEEE 754-2019 Table 3.5), so the window reaches both sides of 1
     const g = gradient("g/activation-gradient", { elements: 1e4, zeroFraction: 0, shape: "gaussian", rms: 1e-2, log2Spread: 0.3 });
@@ -102,7 +102,14 @@ describe("lossScaleAnswer", () => {
     // judged: 1 leaves nothing, as the pick does
     const asGood = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: none });
     expect(asGood.needed).toBe(false);
-    expect(asGood.sentences[0]).toMatch(/need no loss scale/);
+    // the pick is the centre, not 1: 1 is told as a choice that also serves, never as "no loss scale needed"
+    expect(asGood.sentences[0]).toMatch(/^binary16 gradients would also train unscaled: /);
+    expect(asGood.sentences[0]).toMatch(new RegExp(`, so it is the pick\\.$`));
+    expect(asGood.sentences.join(" ")).not.toMatch(/need no loss scale/);
+    // the same weighing with 1 as the pick: then the gradients need no scale
+    const atOne = withWeighedPick(answer, 0, { centreLog2: centre, atCentre: none, atPick: none, unscaled: none });
+    expect(atOne.window.pickLog2).toBe(0);
+    expect(atOne.sentences[0]).toMatch(/^binary16 gradients need no loss scale: .*and 1 \(no scaling\) is the pick/);
     // judged: 1 leaves 3 findings at risk the pick does not
     const worse = withWeighedPick(answer, centre, { centreLog2: centre, atCentre: none, atPick: none, unscaled: { fails: 0, atRisk: 3, overflowSide: 0, conditional: 0 } });
     expect(worse.needed).toBe(true);
