@@ -453,7 +453,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
             : "";
       return (
         `The loss${site.layer === "loss" ? "" : ` of ${site.layer}`}${factors.length > 0 ? ` (${factors.join(", ")})` : ""} ` +
-        `${draft.saturates ? "saturates in" : "overflows"} ${format}${scaled} when ${site.terms > 1 ? "a term" : "it"} exceeds ${limit} ` +
+        `${draft.saturates ? "saturates in" : "overflows"} ${format}${scaled} when ${lossSubject(site.terms, context.lossScale)} exceeds ${limit} ` +
         `(predicted ${predicted}); probability ${probabilityWords(value)} per step${side}` +
         `${draft.notWidened ? " if the loss is kept in the activation format" : ""} (${verdictWord(verdict)}).`
       );
@@ -1068,4 +1068,11 @@ function secondMoment(gradient: MagnitudeProfile, context: HazardContext, list: 
   const { verdict, threshold } = flushedSecondMomentsVerdict(share, context.thresholds);
   fill(nextDraft(list), context.optimizerStates.format, "optimizerStates", "flushed-share", "second-moment-flushed", share, bound,
     verdict, threshold, SECOND_MOMENT, 0, false);
+}
+
+// the limit of the loss-value sentence is in the loss's own units, before the loss scale multiplies it: "it" after
+// "(times the loss scale 2^16)" read as the scaled loss
+function lossSubject(terms: number, lossScale: number): string {
+  if (terms > 1) return lossScale === 1 ? "a term" : "an unscaled term";
+  return lossScale === 1 ? "it" : "the unscaled loss";
 }

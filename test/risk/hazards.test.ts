@@ -176,17 +176,18 @@ describe("a limit and a prediction that read alike at three digits", () => {
     // 4096 terms of ln 1000 = 6.91 each: 28294 < 65520 unscaled (binary16, IEEE 754-2019 Table 3.5 with RNE)
     const loss = site({ kind: "loss-value", layer: "loss", terms: 4096, input: profile({ shape: "constant", rms: Math.log(1000) }) });
     expect(evaluateHazard(loss, context({ accumulate: BINARY16 })).evaluations[0]?.sentence).toMatch(/^The loss \(4096 terms summed\) overflows binary16 when a term exceeds 16 /);
-    expect(evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 })).evaluations[0]?.sentence).toMatch(/^The loss \(4096 terms summed, times the loss scale 2\^2\) overflows/);
+    expect(evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 4 })).evaluations[0]?.sentence).toMatch(/^The loss \(4096 terms summed, times the loss scale 2\^2\) overflows binary16 when an unscaled term exceeds 4 /);
     // binary16's overflow threshold 65520 in full: three digits would write 65500, a value binary16 holds
     const single = site({ kind: "loss-value", layer: "loss", terms: 1, input: profile({ shape: "constant", rms: 2 }) });
     expect(evaluateHazard(single, context({ accumulate: BINARY16 })).evaluations[0]?.sentence).toMatch(/^The loss overflows binary16 when it exceeds 65520 /);
   });
 
-  it("a loss of 8 times the loss scale 2^13 in binary16: exceeds 7.998 (predicted 8)", () => {
+  it("a loss of 8 times the loss scale 2^13 in binary16: the unscaled loss exceeds 7.998 (predicted 8)", () => {
     // 65520 / 8192 = 7.998046875 (binary16's overflow threshold, IEEE 754-2019 Table 3.5 with RNE)
     const loss = site({ kind: "loss-value", terms: 1, input: profile({ shape: "constant", rms: 8 }) });
     const check = evaluateHazard(loss, context({ accumulate: BINARY16, lossScale: 8192 }));
-    expect(check.evaluations[0]?.sentence).toContain("overflows binary16 when it exceeds 7.998 (predicted 8);");
+    // the limit is the unscaled loss's: "it" after "times the loss scale" would read as the scaled loss
+    expect(check.evaluations[0]?.sentence).toContain("overflows binary16 when the unscaled loss exceeds 7.998 (predicted 8);");
   });
 });
 
