@@ -1109,6 +1109,14 @@ function checkAssumptions(
               ? ` The predicted max is the level passed once in ${plainNumber(1 / thresholds.maxQuantile)} steps, so a tensor's largest elements are clipped about that often by the scale rule itself; saturation counts as a finding only when it comes more often (above ${plainNumber(overflowAtRiskThreshold(thresholds, true))} per step).`
               : ""),
     );
+    // e4m3 keeps 3 fraction bits, e5m2 2 (OCP 8-bit floating point specification rev. 1.0), so round to nearest moves a
+    // value by up to 2^-4 and 2^-3 of itself (half an ulp, IEEE 754-2019 §2.1 unit roundoff 2^-p)
+    const eight = formats.filter((format) => FORMATS[format].bits === 8);
+    notes.push(
+      `Stored tensors are judged for their range (flushing, subnormals, overflow), not for the rounding of each value to the few significand bits of ${eight.join(" and ")} ` +
+        `(a relative error up to ${eight.map((format) => `${plainNumber(2 ** -FORMATS[format].precision)} in ${format}`).join(", ")}); ` +
+        "rounding is judged where it adds up, in sums (√n·u). A softmax whose logits are held in an 8-bit format sees each probability move by a factor up to e^(u·|logit|), u that relative error.",
+    );
   }
   if (addedSites) {
     notes.push("The loss value, gradient sums across workers and the optimizer epsilon are judged from the training setup.");

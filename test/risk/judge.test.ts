@@ -270,6 +270,11 @@ describe("judgePrediction", () => {
       expect(hazard.evaluations.filter((e) => e.format === "e5m2")).toEqual(e5m2Alone.hazards[i]?.evaluations);
     });
     expect(result.assumptions.some((a) => a.startsWith("bfloat16 is judged with bfloat16 gradients unscaled"))).toBe(true);
+    // the 8-bit format's significand is not judged for stored tensors: e5m2 keeps 2 fraction bits, p = 3, so round to
+    // nearest moves a value by up to 2^-3 of itself (OCP 8-bit floating point specification rev. 1.0; IEEE 754-2019 §2.1)
+    const rounding = result.assumptions.find((a) => a.startsWith("Stored tensors are judged for their range"));
+    expect(rounding).toContain("the few significand bits of e5m2 (a relative error up to 0.125 in e5m2)");
+    expect(judgePrediction(s, PREDICTION, { formats: ["bfloat16"] }).assumptions.some((a) => a.startsWith("Stored tensors are judged for their range"))).toBe(false);
   });
 
   it("leaves a window for another gradient format unapplied, and a given scale wins over every window", () => {
