@@ -11,7 +11,7 @@ import { fmt, initSource, maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
-import type { NetworkSpec } from "../spec/types.js";
+import type { LayerSpec, NetworkSpec } from "../spec/types.js";
 import { lossSeed } from "./loss.js";
 import { plainProfile, profileOf } from "./profile.js";
 import { carriedMeanSquare, predictionRangeError } from "./range.js";
@@ -736,6 +736,16 @@ function assumptions(spec: NetworkSpec): string[] {
     "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];
+  const crossing = zeroCrossingActivations(spec);
+  if (crossing.length > 0) {
+    // GELU'(x) = Φ(x) + xφ(x) vanishes near x = −0.75 and SiLU'(x) = σ(x)(1 + x(1 − σ(x))) near x = −1.28 (from their
+    // definitions, Hendrycks & Gimpel 2016; Elfwing et al. 2018), so δ·φ'(x) is a Gaussian mixture with mass near zero
+    list.push(
+      `Gradients behind ${crossing.join(" and ")} are taken as Gaussian elements, but the derivative crosses zero, so they hold more ` +
+        "values near zero than a Gaussian of the same rms: their flushed and subnormal shares can be underestimated by a decade or more " +
+        "(their rms and overflow are not affected); confirm flushing behind these activations with a short run.",
+    );
+  }
   // only token input has an embedding table (specs/README: an embedding must be the first layer, on token input)
   if (spec.input.kind === "tokens") {
     list.push("Token ids are taken as used uniformly when spreading embedding gradients over the table's rows; frequent tokens get larger rows, rare ones smaller.");
@@ -753,6 +763,28 @@ function assumptions(spec: NetworkSpec): string[] {
   else list.push("At the end of the horizon the output residual's rms is √(final loss), which scales the output gradient by √(final loss / initial loss), a shrink when the final loss is the smaller.");
   if (t.horizon.weightGrowth !== 1) list.push(`Every weight's rms is multiplied by ${t.horizon.weightGrowth} at the end of the horizon, and the forward pass is recomputed with it.`);
   return list;
+}
+
+/** The activations of the spec (layers, blocks used, gated feed-forward gates) whose derivative crosses zero, in a fixed order. */
+function zeroCrossingActivations(spec: NetworkSpec): string[] {
+  const found = new Set<string>();
+  const seen = new Set<string>();
+  const walk = (layers: readonly LayerSpec[]): void => {
+    for (const layer of layers) {
+      if (layer.family === "activation" || layer.family === "gated-feed-forward") {
+        if (layer.activation === "gelu" || layer.activation === "silu") found.add(layer.activation);
+      } else if (layer.family === "residual") walk(layer.branch);
+      else if (layer.family === "repeat") walk(layer.layers);
+      else if (layer.family === "use" && !seen.has(layer.block)) {
+        seen.add(layer.block);
+        // own keys only: a block may be named __proto__ (as the graph builder reads them)
+        const block = Object.hasOwn(spec.blocks, layer.block) ? spec.blocks[layer.block] : undefined;
+        if (block !== undefined) walk(block);
+      }
+    }
+  };
+  walk(spec.layers);
+  return ["gelu", "silu"].filter((name) => found.has(name)).map((name) => (name === "gelu" ? "GELU" : "SiLU"));
 }
 
 /**

@@ -1,0 +1,62 @@
+import { readFileSync } from "node:fs";
+import { describe, expect, it } from "vitest";
+import { buildGraph } from "../../src/graph/index.js";
+import { predict } from "../../src/magnitude/index.js";
+import { parseSpec } from "../../src/spec/index.js";
+import type { NetworkSpec } from "../../src/spec/types.js";
+
+// Gradients behind an activation whose derivative crosses zero hold more values near zero than a Gaussian of the
+// same rms; the prediction takes them as Gaussian, so its assumptions say so where such an activation is used.
+
+function load(path: string): NetworkSpec {
+  const parsed = parseSpec(readFileSync(path, "utf8"), path);
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  return parsed.spec;
+}
+
+function note(spec: NetworkSpec): string | undefined {
+  const built = buildGraph(spec);
+  if (!built.ok) throw new Error("does not build");
+  return predict(built.graph, spec).assumptions.find((a) => a.startsWith("Gradients behind"));
+}
+
+// Φ by the Abramowitz & Stegun 7.1.26 erf approximation (|error| < 1.5e-7), independent of src/numeric
+function Phi(x: number): number {
+  const z = Math.abs(x) / Math.SQRT2;
+  const t = 1 / (1 + 0.3275911 * z);
+  const erf = 1 - (((((1.061405429 * t - 1.453152027) * t + 1.421413741) * t - 0.284496736) * t + 0.254829592) * t) * Math.exp(-z * z);
+  return x >= 0 ? (1 + erf) / 2 : (1 - erf) / 2;
+}
+
+describe("the note on activations whose derivative crosses zero", () => {
+  it("the derivatives do cross zero: GELU' near −0.75, SiLU' near −1.28", () => {
+    // GELU(x) = x·Φ(x) (Hendrycks & Gimpel 2016), so GELU'(x) = Φ(x) + x·φ(x)
+    const gelu = (x: number) => Phi(x) + (x * Math.exp(-x * x / 2)) / Math.sqrt(2 * Math.PI);
+    expect(gelu(-0.76)).toBeLessThan(0);
+    expect(gelu(-0.74)).toBeGreaterThan(0);
+    // SiLU(x) = x·σ(x) (Elfwing et al. 2018), so SiLU'(x) = σ(x)·(1 + x·(1 − σ(x)))
+    const sigma = (x: number) => 1 / (1 + Math.exp(-x));
+    const silu = (x: number) => sigma(x) * (1 + x * (1 - sigma(x)));
+    expect(silu(-1.28)).toBeLessThan(0);
+    expect(silu(-1.27)).toBeGreaterThan(0);
+  });
+
+  it("names SiLU for a gated feed-forward inside a block used by a repeat, and nothing for a ReLU stack", () => {
+    expect(note(load("specs/transformer-encoder.yaml"))).toMatch(/^Gradients behind SiLU are taken as Gaussian elements, but the derivative crosses zero/);
+    expect(note(load("specs/deep-relu-he.yaml"))).toBeUndefined();
+    expect(note(load("specs/deep-sigmoid.yaml"))).toBeUndefined();
+  });
+
+  it("names GELU and SiLU together, in that order, for activation layers in blocks and residual branches", () => {
+    const base = load("specs/deep-relu-he.yaml");
+    const hidden = base.blocks["hidden"]!;
+    const activation = hidden.find((layer) => layer.family === "activation")!;
+    if (activation.family !== "activation") throw new Error("no activation in the block");
+    const blocks = { hidden: hidden.map((layer) => (layer === activation ? { ...activation, activation: "silu" as const } : layer)) };
+    const classifier = base.layers[base.layers.length - 1]!;
+    const residual = { family: "residual" as const, name: "gelu-skip", path: ["layers", 1], multiplier: 1, branch: [{ ...activation, name: "gelu-1", activation: "gelu" as const }] };
+    const spec = { ...base, blocks, layers: [...base.layers.slice(0, -1), residual, classifier] };
+    expect(note(spec)).toMatch(/^Gradients behind GELU and SiLU are taken/);
+    expect(note({ ...base, blocks })).toMatch(/^Gradients behind SiLU are taken/);
+  });
+});
