@@ -21,6 +21,7 @@ import {
   type ShrinkFactors,
   type SimulationReport,
   type SimulationResult,
+  stepTrouble,
 } from "../simulate/index.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
 import { scaleWords } from "../risk/words.js";
@@ -196,19 +197,25 @@ export function parseShrink(text: string): Partial<ShrinkFactors> {
 }
 
 /**
- * 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation, or when the scaled loss
- * overflowed the accumulate format; 0 otherwise. The loss is not stored (the run keeps it in binary64): its counts say
- * what keeping the scaled loss in the activation format would do, which check too calls at risk only, so they list it
- * but set no exit code; in the accumulate format, where the loss is summed, check says "fails" (src/risk/hazards.ts
- * lossValue), and so does the exit code.
+ * 1 when a stored tensor overflowed (or saturated) or held non-finite values in the simulation — at the first
+ * measurement or after the optimizer steps — or when the scaled loss overflowed the accumulate format, or when a step
+ * was skipped for an overflowed gradient or made an infinite or NaN update (each median over draws, as the tensors'
+ * counts are); 0 otherwise. The loss is not stored (the run keeps it in binary64): its counts say what keeping the
+ * scaled loss in the activation format would do, which check too calls at risk only, so they list it but set no exit
+ * code; in the accumulate format, where the loss is summed, check says "fails" (src/risk/hazards.ts lossValue), and so
+ * does the exit code.
  */
 export function simulationExitCode(result: SimulationResult): number {
-  const bad = result.tensors.some((t) => {
-    if (t.countsScaledBy === undefined) return overflowShare(t.median.counts) > 0;
-    const summed = summedLossCounts(t, result);
-    return summed !== undefined && overflowShare(summed) > 0;
-  });
+  const trouble = stepTrouble(result);
+  const bad = result.tensors.some((t) => overflowedIn(t, t.median, result) || (t.after !== undefined && overflowedIn(t, t.after, result))) || trouble.skipped > 0 || trouble.nonFiniteUpdates > 0;
   return bad ? EXIT.findings : EXIT.ok;
+}
+
+/** Whether a measurement of the tensor (first or after the steps) has an overflow that sets the exit code. */
+function overflowedIn(t: MeasuredTensor, stats: TensorStats, result: SimulationResult): boolean {
+  if (t.countsScaledBy === undefined) return overflowShare(stats.counts) > 0;
+  const summed = summedLossCounts(t, result, stats);
+  return summed !== undefined && overflowShare(summed) > 0;
 }
 
 /**
@@ -216,10 +223,10 @@ export function simulationExitCode(result: SimulationResult): number {
  * accumulates in another format than its activations', else the activation format's counts themselves (the run counts
  * one format once, as check does).
  */
-function summedLossCounts(t: MeasuredTensor, result: SimulationResult): FormatCounts | undefined {
+function summedLossCounts(t: MeasuredTensor, result: SimulationResult, stats: TensorStats = t.median): FormatCounts | undefined {
   if (t.countsScaledBy === undefined) return undefined;
-  if (t.median.accumulateCounts !== undefined) return t.median.accumulateCounts;
-  return result.formats.accumulate === result.formats.activations ? t.median.counts : undefined;
+  if (stats.accumulateCounts !== undefined) return stats.accumulateCounts;
+  return result.formats.accumulate === result.formats.activations ? stats.counts : undefined;
 }
 
 function overflowShare(counts: FormatCounts): number {
@@ -280,7 +287,8 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       options.all === true ||
       simulatedFinding(t.median.counts) ||
       (t.median.accumulateCounts !== undefined && simulatedFinding(t.median.accumulateCounts)) ||
-      byId.get(t.id)?.disagrees === true,
+      byId.get(t.id)?.disagrees === true ||
+      (t.after !== undefined && overflowShare(t.after.counts) > 0),
   );
   // a column for elements infinite or NaN in the run (outside rms, max, quantiles) only when some shown tensor has any
   const nonFinite = shown.some((t) => t.median.nonFiniteFraction > 0 || (t.after?.nonFiniteFraction ?? 0) > 0);
@@ -303,7 +311,7 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
     { title: "subnormal" },
     { title: "subnormal noise" },
     { title: "overflow" },
-    ...(result.steps > 0 ? [{ title: `rms after ${result.steps}`, align: "right" as const }] : []),
+    ...(result.steps > 0 ? [{ title: `rms after ${result.steps}`, align: "right" as const }, { title: `overflow after ${result.steps}` }] : []),
   ];
   const cells: Cell[][] = shown.flatMap((t) => {
     const row = byId.get(t.id);
@@ -322,6 +330,8 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
         "subnormal noise": formatProbability(held.subnormalNoise),
         overflow: formatPercent(overflowShare(held)),
       };
+      const heldAfter = t.after?.accumulateCounts;
+      if (heldAfter !== undefined) cells[`overflow after ${result.steps}`] = formatPercent(overflowShare(heldAfter));
       accumulateLine.push(columns.map((c) => cells[c.title] ?? ""));
     }
     const line: Cell[] = [
@@ -342,7 +352,11 @@ export function renderSimulationText(report: SimulationReport, options: { all?: 
       formatPercent(m.counts.subnormal),
       formatProbability(m.counts.subnormalNoise),
       formatPercent(overflowShare(m.counts)),
-      ...(result.steps > 0 ? [t.after !== undefined ? magnitudeCell(t.after, t.after.rms, "none finite") : ""] : []),
+      ...(result.steps > 0
+        ? t.after !== undefined
+          ? [magnitudeCell(t.after, t.after.rms, "none finite"), formatPercent(overflowShare(t.after.counts))]
+          : ["", ""]
+        : []),
     ];
     return [line, ...accumulateLine];
   });
@@ -463,25 +477,88 @@ function describe(r: ComparisonRow): string {
 function stepLines(result: SimulationResult): string[] {
   const history = result.history[0] ?? [];
   const out = [`Optimizer steps (draw with seed ${result.seeds[0]}):`];
+  const largest = (values: number[]): string => (values.length > 0 ? formatPercent(Math.max(...values)) : "");
+  // Adam's second moments, as check's second-moment rule judges them; non-finite updates only when some step made one
+  const moments = history.some((h) => Object.keys(h.secondMomentsFlushed).length > 0);
+  const nonFinite = history.some((h) => Object.values(h.nonFiniteUpdates).some((x) => x > 0));
   const cells: Cell[][] = history.map((h) => {
-    const swamped = Object.values(h.swamped);
     const ratios = Object.values(h.updateRatio);
     return [
       h.step,
       formatValue(h.learningRate),
       formatValue(h.loss),
       h.skipped ? "skipped (overflow)" : "applied",
-      swamped.length > 0 ? formatPercent(Math.max(...swamped)) : "",
+      largest(Object.values(h.swamped)),
       ratios.length > 0 ? formatValue(Math.max(...ratios)) : "",
+      ...(moments ? [largest(Object.values(h.secondMomentsFlushed))] : []),
+      ...(nonFinite ? [largest(Object.values(h.nonFiniteUpdates))] : []),
     ];
   });
-  out.push(renderTable([{ title: "step" }, { title: "learning rate" }, { title: "loss before" }, { title: "update" }, { title: "most swamped" }, { title: "largest update/weight" }], cells).trimEnd());
+  const columns = [
+    { title: "step" },
+    { title: "learning rate" },
+    { title: "loss before" },
+    { title: "update" },
+    { title: "most swamped" },
+    { title: "largest update/weight" },
+    ...(moments ? [{ title: "most second moments flushed" }] : []),
+    ...(nonFinite ? [{ title: "most update non-finite" }] : []),
+  ];
+  out.push(renderTable(columns, cells).trimEnd());
+  if (moments) {
+    out.push(
+      `  most second moments flushed: the largest share, over the weights, of Adam's second moments nonzero before storage that ${result.formats.optimizerStates} flushed to 0 (at step 1, (1 − β2)·g², which check's second-moment rule judges).`,
+    );
+  }
+  out.push(...troubleLines(result));
   return out;
+}
+
+/** Sentences saying how the run diverged in its steps, and that it sets exit code 1; none when it did not. */
+function troubleLines(result: SimulationResult): string[] {
+  const trouble = stepTrouble(result);
+  const out: string[] = [];
+  const draws = result.seeds.length === 1 ? "" : ` (median over the ${result.seeds.length} draws)`;
+  if (trouble.nonFiniteUpdates > 0) {
+    // worst first, by the tensor ids the table uses; a few of them
+    const sorted = [...trouble.nonFiniteWeights].sort((a, b) => b.share - a.share);
+    const named = sorted.slice(0, 4).map((w) => `${weightTensorId(w.weight)} ${formatPercent(w.share)}`);
+    const weights = named.join(", ") + (sorted.length > named.length ? `, and ${sorted.length - named.length} more` : "");
+    const epsilon = result.epsilon !== undefined && result.epsilon.stored === 0 ? `: Adam's ε ${formatValue(result.epsilon.value)} is held as 0 in ${result.formats.optimizerStates}, so where a second moment is 0 too the update divides by zero` : "";
+    out.push(
+      `  ${plural(trouble.nonFiniteUpdates, "step")} made infinite or NaN updates${draws}${weights === "" ? "" : ` (share of the update's elements, worst step: ${weights})`}${epsilon}.`,
+    );
+  }
+  if (trouble.skipped > 0) {
+    const which = trouble.skippedSteps.length > 0 ? ` (step${trouble.skippedSteps.length === 1 ? "" : "s"} ${trouble.skippedSteps.join(", ")} in the draw above)` : "";
+    out.push(`  ${plural(trouble.skipped, "step")} of ${result.steps} skipped${draws}${which}: a gradient was infinite or NaN once the loss scale was removed.`);
+  }
+  const after = result.tensors.filter((t) => t.after !== undefined && overflowShare(t.after.counts) > 0).length;
+  if (after > 0) out.push(`  After the steps, ${plural(after, "stored tensor")} overflowed or held infinite or NaN values (the column "overflow after ${result.steps}").`);
+  if (out.length > 0) out.unshift("The run diverged, so the exit code is 1:");
+  return out;
+}
+
+/** A weight's tensor id from the engine's key `<layer>/<weight name>` (`fc1/bias` → `fc1/weight:bias`). */
+function weightTensorId(key: string): string {
+  const cut = key.lastIndexOf("/");
+  const name = key.slice(cut + 1);
+  return `${key.slice(0, cut)}/weight${name === "weight" ? "" : `:${name}`}`;
+}
+
+function plural(n: number, noun: string): string {
+  return `${formatValue(n)} ${noun}${n === 1 ? "" : "s"}`;
 }
 
 /** A tensor's statistics for JSON: rms, max and quantiles null when no finite element was left to measure (not 0). */
 function statsJson(stats: TensorStats): Omit<TensorStats, "rms" | "max" | "quantiles"> & { rms: number | null; max: number | null; quantiles: TensorStats["quantiles"] | null } {
   return hasFiniteMagnitudes(stats) ? stats : { ...stats, rms: null, max: null, quantiles: null };
+}
+
+/** The steps' divergence for JSON: medians over draws of the steps skipped and of those with non-finite updates. */
+function stepTroubleJson(result: SimulationResult): { skippedSteps: number; stepsWithNonFiniteUpdates: number } {
+  const trouble = stepTrouble(result);
+  return { skippedSteps: trouble.skipped, stepsWithNonFiniteUpdates: trouble.nonFiniteUpdates };
 }
 
 /** JSON: the run's settings, every tensor with its measured median beside the prediction, disagreements, steps. */
@@ -532,6 +609,8 @@ export function renderSimulationJson(report: SimulationReport): string {
       ? { tolerance: comparison.tolerance, disagreements: comparison.disagreements.map((r) => r.id), measuredOnly: comparison.measuredOnly, predictedOnly: comparison.predictedOnly }
       : {}),
     history: result.history,
+    ...(result.steps > 0 ? { stepTrouble: stepTroubleJson(result) } : {}),
+    ...(result.epsilon !== undefined ? { epsilon: result.epsilon } : {}),
     initialLoss: result.initialLoss,
     assumptions: result.assumptions,
     note: ESTIMATE_NOTE,

@@ -56,6 +56,8 @@ interface Setup {
   /** the plan's accumulate format, where check's loss-value rule also judges the scaled loss */
   accumulateFormat: Format;
   lossScale: number;
+  /** Adam's ε as the optimizer states' format holds it (the given ε without rounding); 0 for other optimizers */
+  epsilon: number;
   microBatches: number;
   wantedMicroBatches: number;
 }
@@ -409,7 +411,7 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
   model.step++;
   const t = model.step;
   const lr = learningRate(spec, t);
-  const record: StepRecord = { step: t, loss, learningRate: lr, skipped: false, swamped: {}, updateRatio: {} };
+  const record: StepRecord = { step: t, loss, learningRate: lr, skipped: false, swamped: {}, updateRatio: {}, nonFiniteUpdates: {}, secondMomentsFlushed: {} };
   // remove the loss scale (Micikevicius et al. 2018 §3.2: unscale before clipping and weight decay)
   const unscaled = new Map<string, Float64Array>();
   let finite = true;
@@ -457,18 +459,26 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
       let v = model.second.get(key);
       if (m === undefined) model.first.set(key, (m = new Float64Array(g.length)));
       if (v === undefined) model.second.set(key, (v = new Float64Array(g.length)));
+      let nonzero = 0;
       for (let i = 0; i < g.length; i++) {
         m[i] = b1 * m[i]! + (1 - b1) * g[i]!;
         v[i] = b2 * v[i]! + (1 - b2) * g[i]! * g[i]!;
+        if (v[i] !== 0) nonzero++;
       }
+      let kept = nonzero;
       if (setup.round) {
         storeIn(setup, states, m);
         storeIn(setup, states, v);
+        kept = 0;
+        for (let i = 0; i < g.length; i++) if (v[i] !== 0) kept++;
       }
+      record.secondMomentsFlushed[key] = nonzero > 0 ? (nonzero - kept) / nonzero : 0;
       const c1 = 1 - b1 ** t;
       const c2 = 1 - b2 ** t;
       for (let i = 0; i < g.length; i++) {
-        update[i] = (lr * (m[i]! / c1)) / (Math.sqrt(v[i]! / c2) + opt.epsilon);
+        // ε as the states' format holds it: where it and a flushed second moment are both 0 the update divides by
+        // zero (Kingma & Ba 2015, Algorithm 1), as check's optimizer epsilon rule says
+        update[i] = (lr * (m[i]! / c1)) / (Math.sqrt(v[i]! / c2) + setup.epsilon);
         if (decoupled) update[i] = update[i]! + lr * opt.weightDecay * current[i]!;
       }
     }
@@ -476,10 +486,14 @@ function optimizerStep(setup: Setup, model: Model, gradients: Map<string, Float6
     let changed = 0;
     let u2 = 0;
     let w2 = 0;
+    let nonFinite = 0;
     for (let i = 0; i < g.length; i++) {
-      u2 += update[i]! * update[i]!;
       w2 += stored[i]! * stored[i]!;
+      // a non-finite element is counted apart: the ratio is of the finite part of the update
+      if (!Number.isFinite(update[i]!)) nonFinite++;
+      else u2 += update[i]! * update[i]!;
     }
+    record.nonFiniteUpdates[key] = g.length > 0 ? nonFinite / g.length : 0;
     const target = master ?? stored;
     const before = Float64Array.from(target);
     for (let i = 0; i < g.length; i++) target[i] = target[i]! - update[i]!;
@@ -526,6 +540,13 @@ function chooseLossScale(
   if (plan.lossScale !== undefined) return { value: plan.lossScale, origin: "plan" };
   if (options.defaultLossScale === undefined) return { value: 1, origin: "none" };
   return options.defaultLossScale(simulated, { plan, shrunk });
+}
+
+/** A number in a sentence: three significant digits, exponent form outside 1e-4..1e6 (as the text outputs write values, src/report/number.ts formatValue). */
+function numberWords(x: number): string {
+  if (x === 0) return "0";
+  const a = Math.abs(x);
+  return a >= 1e-4 && a < 1e6 ? String(Number(x.toPrecision(3))) : x.toExponential(2).replace(/\.?0+e/, "e").replace("e+", "e");
 }
 
 /** A rounding function for the accumulate format, or undefined for binary64 (no rounding needed). */
@@ -586,10 +607,18 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
     accumulate: options.round === false ? undefined : accumulator(accumulateFormat, roundOptions),
     accumulateFormat,
     lossScale,
+    epsilon: 0,
     microBatches: Math.min(wanted, cap),
     wantedMicroBatches: wanted,
   };
 
+  const optimizer = training.optimizer;
+  const adamLike = optimizer.kind === "adam" || optimizer.kind === "adamw";
+  if (adamLike) {
+    // held in the states' format, as the states it is added to (and as check's optimizer epsilon rule holds it)
+    const states = setup.formats.optimizerStates;
+    setup.epsilon = setup.round ? roundTo(states, optimizer.epsilon, roundOptionsFor(roundOptions, states)) : optimizer.epsilon;
+  }
   const perTensor = new Map<string, { meta: TensorMeta; draws: TensorStats[]; after: TensorStats[] }>();
   const history: StepRecord[][] = [];
   const initialLoss: number[] = [];
@@ -658,12 +687,13 @@ export function runSimulation(original: NetworkSpec, options: SimulateOptions = 
     memory: { estimateBytes: estimate, limitBytes: limit },
     tensors,
     history,
+    ...(adamLike ? { epsilon: { value: optimizer.epsilon, stored: setup.epsilon } } : {}),
     initialLoss,
-    assumptions: assumptions(setup, report.shrunk),
+    assumptions: assumptions(setup, report.shrunk, steps),
   };
 }
 
-function assumptions(setup: Setup, shrunk: boolean): string[] {
+function assumptions(setup: Setup, shrunk: boolean, steps: number): string[] {
   const list = [
     "Inputs are random: Gaussian features or pixels at the spec's input scale, token ids uniform over the vocabulary, class targets uniform, regression targets Gaussian at the target scale.",
     "Each tensor is measured in binary64 just before it is stored, then rounded to its planned format (round to nearest, ties to even) and used in that form.",
@@ -693,6 +723,15 @@ function assumptions(setup: Setup, shrunk: boolean): string[] {
             ? ` The weight-gradient sums are scaled to the size of the sum of all ${setup.wantedMicroBatches}: the part the micro-batches run share adds in proportion to the count, the rest as independent noise (√ of the count).`
             : ` The weight-gradient sums are multiplied by √(${setup.wantedMicroBatches}/${setup.microBatches}), taking the missing micro-batches as independent.`
           : ""),
+    );
+  }
+  const optimizer = setup.spec.training.optimizer;
+  if (steps > 0 && (optimizer.kind === "adam" || optimizer.kind === "adamw")) {
+    const states = setup.formats.optimizerStates.name;
+    const held = setup.round ? `, with ε held in ${states} too (${numberWords(optimizer.epsilon)} → ${numberWords(setup.epsilon)})` : "";
+    list.push(
+      `Adam's update lr·m̂/(√v̂ + ε) is worked out in binary64 from the moments as stored${setup.round ? ` in ${states}` : ""}${held}` +
+        (setup.round && setup.epsilon === 0 ? "; where a second moment flushed to 0 the update divides by zero, and the weight becomes infinite or NaN." : "."),
     );
   }
   if (shrunk) list.push("The network was shrunk for speed; see the list of changes. Predictions compared with it are made for the shrunk network.");

@@ -135,7 +135,8 @@ export function hasFiniteMagnitudes(stats: Pick<TensorStats, "rms" | "nonFiniteF
   return stats.rms > 0 || stats.nonFiniteFraction === 0;
 }
 
-function median(values: number[]): number {
+/** The median of a non-empty list (the mean of the middle two for an even count). */
+export function median(values: readonly number[]): number {
   const s = [...values].sort((a, b) => a - b);
   const m = s.length >> 1;
   return s.length % 2 === 1 ? s[m]! : (s[m - 1]! + s[m]!) / 2;

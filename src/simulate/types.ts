@@ -152,6 +152,16 @@ export interface StepRecord {
   swamped: Record<string, number>;
   /** per weight: rms(update) / rms(weight) before the update; weights that started at zero (biases) are left out */
   updateRatio: Record<string, number>;
+  /**
+   * per weight: share of its update's elements that are infinite or NaN (Adam dividing by a second moment and an ε
+   * both stored as 0, or an update past binary64's range), which turn the weight non-finite
+   */
+  nonFiniteUpdates: Record<string, number>;
+  /**
+   * Adam only, per weight: share of the second moments nonzero before storage that the optimizer states' format
+   * flushed to zero (at step 1 the second moment is (1 − β2)·g², the value check's second-moment rule judges)
+   */
+  secondMomentsFlushed: Record<string, number>;
 }
 
 /** What was shrunk, and how the comparison treats it. */
@@ -187,6 +197,8 @@ export interface SimulationResult {
   tensors: MeasuredTensor[];
   /** per draw, per step (empty when no steps were run) */
   history: StepRecord[][];
+  /** Adam's ε as given and as the optimizer states' format holds it, the value the update divides by (Adam only) */
+  epsilon?: { value: number; stored: number };
   /** the loss of the first step, per draw */
   initialLoss: number[];
   /** what the engine assumed, in plain sentences */

@@ -25,7 +25,8 @@ export const register: RegisterCommand = (program) => {
     .option("--html <file>", "also write a page with each tensor's measured band drawn over its predicted band")
     .addHelpText(
       "after",
-      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation, 1 when one did, 2 for bad input. " +
+      "\nExit code: 0 when no stored tensor overflowed or became non-finite in the simulation (at the first measurement or after the " +
+        "--steps) and no step was skipped for an overflowed gradient or made an infinite or NaN update, 1 when one did, 2 for bad input. " +
         "The loss is listed with the shares of the loss times the loss scale, as check judges it, in the activation format (not " +
         "stored: no exit code) and, when the plan accumulates in another format, summed in that one; an overflow of the sum " +
         "exits 1, as check says it fails (with one format for both, the one count is the sum's).",
