@@ -21,8 +21,8 @@ import {
   type ShrinkFactors,
   type SimulationReport,
   type SimulationResult,
-  stepTrouble,
 } from "../simulate/index.js";
+import { stepTrouble } from "../simulate/steps.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
 import { scaleWords } from "../risk/words.js";
 import type { SpecResult } from "../spec/index.js";

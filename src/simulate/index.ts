@@ -15,7 +15,6 @@ export { compareWithPrediction, zeroAfterStorage, predictedFlushedFraction, pred
 export type { Comparison, ComparisonRow, Tolerance } from "./compare.js";
 export { shrinkSpec, shrinkFactors, estimateMemory, suggestShrink, NO_SHRINK } from "./shrink.js";
 export { measureTensor, medianStats } from "./stats.js";
-export { stepTrouble, type StepTrouble } from "./steps.js";
 export { gemm, matmul, matmulTransposeA, matmulTransposeB, type RoundFunction } from "../numeric/matmul.js";
 
 /** A prediction function with the magnitude engine's signature (headroom's `predict`). */
