@@ -126,6 +126,15 @@ class Phase {
   readonly stash: unknown[] = [];
   readonly ctx: OpContext;
   private readonly endVariance = new Map<GraphWeight, number>();
+  /** the profile a backward sum made of the gradient at its layer's input, for that gradient's tensor (see backward) */
+  private made: { of: Gradient; profile: MagnitudeProfile } | undefined = undefined;
+  private takeMade(): { of: Gradient; profile: MagnitudeProfile } | undefined {
+    const made = this.made;
+    this.made = undefined;
+    return made;
+  }
+  /** the current layer's weight gradients and their per-micro-batch profiles, in pairs (see perMicroBatch) */
+  private readonly summed: (WeightGradientMoment | MagnitudeProfile)[] = [];
 
   /** whether the start pass links its ledger nodes: only when a ledger is read ({@link LedgerSource}) */
   readonly ledger: boolean;
@@ -391,10 +400,15 @@ class Phase {
   backward(layers: readonly GraphLayer[], output: Gradient, node: LedgerNode | null, seeded: boolean, bottom: boolean): Gradient | undefined {
     let gradient: Gradient | undefined = output;
     let current = node;
+    // the profile the layer above made of this gradient for its backward sum's result (the same moments and count give
+    // the same profile: one object for the site and the tensor), taken only by the next layer's tensor
+    this.made = undefined;
     for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
       const layer = layers[i] as GraphLayer;
       const prefix = this.build ? `${layer.name}/` : "";
+      const made = this.takeMade();
       if (!(seeded && i === layers.length - 1)) {
+        const elements = this.graph.batch * sampleElements(layer.output);
         this.emit(
           this.build ? `${prefix}activation-gradient` : "",
           layer.name,
@@ -403,11 +417,13 @@ class Phase {
           "activation-gradient",
           "gradients",
           this.outputShape(layer),
-          profileOf(gradient, this.graph.batch * sampleElements(layer.output)),
+          made !== undefined && made.of === gradient && made.profile.elements === elements ? made.profile : profileOf(gradient, elements),
           current,
         );
       }
       const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current, bottom && i === 0);
+      // what the branch's lowest layer made is the branch's own input gradient, not this layer's
+      this.made = undefined;
       const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // nothing reads a layer's stash after its backward rule: let it go, so a collection during the pass copies less
       this.stash[layer.index] = undefined;
@@ -416,10 +432,11 @@ class Phase {
       const inner = result.inner;
       for (let k = 0; k < inner.length; k++) this.innerGradient(layer, prefix, inner[k] as InnerGradient, current);
       const weightGradients = result.weightGradients;
+      this.summed.length = 0;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
       const hazards = result.hazards;
       if (hazards !== undefined) {
-        for (let k = 0; k < hazards.length; k++) this.backwardHazard(layer, prefix, hazards[k] as OpHazard, weightGradients, bottom && i === 0);
+        for (let k = 0; k < hazards.length; k++) this.backwardHazard(layer, prefix, hazards[k] as OpHazard, weightGradients, bottom && i === 0, input);
       }
       current = chain(current, layer.name, result.factors, this.ledger);
       gradient = input;
@@ -449,6 +466,18 @@ class Phase {
       profileOf(inner.gradient, inner.elements),
       chain(node, layer.name, inner.factors, this.ledger),
     );
+  }
+
+  /**
+   * A weight gradient's profile in one micro-batch of one worker, made once per layer's backward rule for the sites that
+   * take it (the gradient sum's terms, the sum over batch × positions' result).
+   */
+  private perMicroBatch(wg: WeightGradientMoment, weight: GraphWeight): MagnitudeProfile {
+    const summed = this.summed;
+    for (let k = 0; k < summed.length; k += 2) if (summed[k] === wg) return summed[k + 1] as MagnitudeProfile;
+    const profile = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+    summed.push(wg, profile);
+    return profile;
   }
 
   /**
@@ -509,17 +538,19 @@ class Phase {
    * products are not summed. A weight gradient's sum over batch × positions takes that gradient's per-micro-batch
    * profile as its result.
    */
-  private backwardHazard(layer: GraphLayer, prefix: string, h: OpHazard, weightGradients: readonly WeightGradientMoment[], atInput: boolean): void {
+  private backwardHazard(layer: GraphLayer, prefix: string, h: OpHazard, weightGradients: readonly WeightGradientMoment[], atInput: boolean, made: Gradient | undefined): void {
     const makes = h.makes ?? "input";
     if (atInput && makes === "input") return;
     let output: MagnitudeProfile | undefined;
-    if (h.output !== undefined) output = profileOf(h.output, h.outputElements ?? h.inputElements);
-    else if (makes.startsWith("weight-gradient")) {
+    if (h.output !== undefined) {
+      output = profileOf(h.output, h.outputElements ?? h.inputElements);
+      if (makes === "input" && h.output === made) this.made = { of: made, profile: output };
+    } else if (makes.startsWith("weight-gradient")) {
       const name = makes === "weight-gradient" ? "weight" : makes.slice("weight-gradient:".length);
       const weight = maybeWeight(layer, name);
       for (let k = 0; k < weightGradients.length && weight !== undefined; k++) {
         const wg = weightGradients[k] as WeightGradientMoment;
-        if (wg.weight === name) output = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+        if (wg.weight === name) output = this.perMicroBatch(wg, weight);
       }
     }
     const input = profileOf(h.input, h.inputElements);
@@ -529,7 +560,7 @@ class Phase {
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
-    const input = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
+    const input = this.perMicroBatch(wg, weight);
     const output = plainProfile(summedQ, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
     if (this.phase === "end") return this.siteEnd("gradient-sum", layer.name, input, output);
     this.site({
