@@ -4,6 +4,7 @@
  */
 import { buildGraph, type Graph, type GraphIssue, type GraphResult } from "./graph/index.js";
 import { predict } from "./magnitude/index.js";
+import { predictForCheck } from "./magnitude/predict.js";
 import { PredictionRangeError } from "./magnitude/range.js";
 import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
@@ -461,9 +462,10 @@ function sameNetwork(a: NetworkSpec, b: NetworkSpec): boolean {
  */
 function measuredPrediction(graph: Graph, network: MeasuredNetwork, spec: NetworkSpec): { prediction: Prediction; unused: UnusedStatistic[] } {
   const measurements = network.measurements;
-  if (measurements === undefined) return { prediction: predict(graph, spec), unused: [] };
+  // check returns none of the prediction's tensors: their ledgers need not be own properties
+  if (measurements === undefined) return { prediction: predictForCheck(graph, spec), unused: [] };
   const calibration = network.calibration;
-  const prediction = predict(calibration?.graph ?? graph, spec);
+  const prediction = predictForCheck(calibration?.graph ?? graph, spec);
   const applied = applyMeasurements(prediction, calibration, measurements.statistics, measurements.statisticsFile);
   return { prediction: applied.prediction, unused: applied.report.unusedStatistics };
 }

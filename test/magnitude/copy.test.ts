@@ -3,6 +3,7 @@ import { withProfiles } from "../../src/magnitude/copy.js";
 import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
+import { predictForCheck } from "../../src/magnitude/predict.js";
 import { clippedBy, gradientClips, weightGradientsOf } from "../../src/risk/second-moments.js";
 import { act, dense, makeSpec } from "./build-spec.js";
 
@@ -46,6 +47,21 @@ describe("withProfiles: a copy with other profiles keeps the ledger lazy", () =>
     for (let i = 0; i < clipped.length; i++) {
       expect(clipped[i]!.start.rms).toBeLessThan(gradients[i]!.start.rms);
       expect(JSON.stringify(clipped[i]!.ledger)).toBe(JSON.stringify(gradients[i]!.ledger));
+    }
+  });
+
+  it("a tensor of the prediction check keeps (ledger through its class): the copy reads the same ledger and has the same own keys", () => {
+    const s = makeSpec([dense("d0", 16), act("a0"), dense("d1", 4)]);
+    const built = buildGraph(s);
+    if (!built.ok) throw new Error("does not build");
+    const kept = weightGradientsOf(predictForCheck(built.graph, s));
+    const returned = weightGradientsOf(predict(built.graph, s));
+    const clipped = clippedBy(kept, gradientClips(1e-6, kept));
+    expect(clipped.length).toBe(returned.length);
+    for (let i = 0; i < clipped.length; i++) {
+      expect(Object.keys(clipped[i]!)).toEqual(Object.keys(kept[i]!));
+      expect(clipped[i]!.ledger.length).toBeGreaterThan(0);
+      expect(JSON.stringify(clipped[i]!.ledger)).toBe(JSON.stringify(returned[i]!.ledger));
     }
   });
 });

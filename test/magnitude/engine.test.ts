@@ -4,6 +4,7 @@ import { describe, expect, test } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import { createRandom, gaussianSoftmaxMoments } from "../../src/numeric/index.js";
 import { predict } from "../../src/magnitude/index.js";
+import { predictForCheck } from "../../src/magnitude/predict.js";
 import type { Prediction, TensorPrediction } from "../../src/magnitude/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec, TrainingSpec } from "../../src/spec/types.js";
@@ -94,6 +95,25 @@ describe("the prediction lists every tensor once", () => {
     const first = gradient[0] as TensorPrediction;
     const seed = (q: Prediction) => tensor(q, first.id).ledger.find((e) => e.layer === "loss")?.log2Factor ?? NaN;
     expect(seed(p) - seed(unscaled)).toBeCloseTo(10, 9);
+  });
+
+  test("the prediction check keeps: the same tensors, sites and ledgers as predict's, the ledger read through the tensor only", () => {
+    const spec = smallTransformer();
+    const built = buildGraph(spec);
+    if (!built.ok) throw new Error("does not build");
+    const returned = predict(built.graph, spec);
+    const kept = predictForCheck(built.graph, spec);
+    expect(JSON.stringify(kept.hazards)).toBe(JSON.stringify(returned.hazards));
+    expect(kept.tensors.length).toBe(returned.tensors.length);
+    for (let i = 0; i < kept.tensors.length; i++) {
+      const a = kept.tensors[i]!;
+      const b = returned.tensors[i]!;
+      // every key predict's tensor has but the ledger, in its order
+      expect(Object.keys(a)).toEqual(Object.keys(b).filter((k) => k !== "ledger"));
+      expect(JSON.stringify(a)).toBe(JSON.stringify(b, (key, value: unknown) => (key === "ledger" ? undefined : value)));
+      expect(a.ledger.length, a.id).toBeGreaterThan(0);
+      expect(JSON.stringify(a.ledger)).toBe(JSON.stringify(b.ledger));
+    }
   });
 
   test("ledgers survive a spread copy and JSON", () => {
