@@ -2,7 +2,7 @@ import { readFileSync } from "node:fs";
 import { beforeEach, describe, expect, it, vi } from "vitest";
 import { check } from "../../src/check.js";
 import { FORMAT_NAMES, type FormatName } from "../../src/formats/names.js";
-import { predict } from "../../src/magnitude/index.js";
+import { predictForCheck } from "../../src/magnitude/predict.js";
 import { lossScaleAnswer } from "../../src/scale/recommend.js";
 import { parseSpec } from "../../src/spec/index.js";
 
@@ -12,9 +12,10 @@ vi.mock("../../src/scale/recommend.js", async (importOriginal) => {
   const original = await importOriginal<typeof import("../../src/scale/recommend.js")>();
   return { ...original, lossScaleAnswer: vi.fn(original.lossScaleAnswer) };
 });
-vi.mock("../../src/magnitude/index.js", async (importOriginal) => {
-  const original = await importOriginal<typeof import("../../src/magnitude/index.js")>();
-  return { ...original, predict: vi.fn(original.predict) };
+// check's own prediction (the one it keeps to itself, src/magnitude/predict.ts)
+vi.mock("../../src/magnitude/predict.js", async (importOriginal) => {
+  const original = await importOriginal<typeof import("../../src/magnitude/predict.js")>();
+  return { ...original, predictForCheck: vi.fn(original.predictForCheck) };
 });
 
 const parsed = parseSpec(readFileSync("specs/wide-classifier.yaml", "utf8"), "specs/wide-classifier.yaml");
@@ -25,19 +26,19 @@ const unknown = (name: string) => `unknown format "${name}"; accepted: ${FORMAT_
 
 beforeEach(() => {
   vi.mocked(lossScaleAnswer).mockClear();
-  vi.mocked(predict).mockClear();
+  vi.mocked(predictForCheck).mockClear();
 });
 
 describe("check validates its formats before any work", () => {
   it("a good format searches its window (the spies see the work)", () => {
     check(spec, { formats: ["binary16"] });
-    expect(vi.mocked(predict)).toHaveBeenCalledTimes(1);
+    expect(vi.mocked(predictForCheck)).toHaveBeenCalledTimes(1);
     expect(vi.mocked(lossScaleAnswer)).toHaveBeenCalledTimes(1);
   });
 
   it("nosuchformat,binary16: RangeError with the judge's message; no prediction, no window search", () => {
     expect(() => check(spec, { formats: ["nosuchformat" as FormatName, "binary16"] })).toThrow(new RangeError(unknown("nosuchformat")));
-    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+    expect(vi.mocked(predictForCheck)).not.toHaveBeenCalled();
     expect(vi.mocked(lossScaleAnswer)).not.toHaveBeenCalled();
   });
 
@@ -48,7 +49,7 @@ describe("check validates its formats before any work", () => {
 
   it("a bad loss scale is still reported before an unknown format", () => {
     expect(() => check(spec, { formats: ["nosuchformat" as FormatName], lossScale: -1 })).toThrow("the loss scale must be a positive finite power of two, got -1");
-    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+    expect(vi.mocked(predictForCheck)).not.toHaveBeenCalled();
   });
 
   // the spec's `loss-scale` and `--loss-scale` take powers of two inside binary32's normal range (a power of two scales
@@ -58,6 +59,6 @@ describe("check validates its formats before any work", () => {
     expect(() => check(spec, { lossScale: 3 })).toThrow(new RangeError("the loss scale must be a power of two (such as 1024 or 65536), got 3"));
     expect(() => check(spec, { lossScale: 2 ** 200 })).toThrow(/2\^200 is outside binary32's normal range, 2\^-126 to 2\^127/);
     expect(() => check(spec, { lossScale: 2 ** -130 })).toThrow(/2\^-130 is outside binary32's normal range/);
-    expect(vi.mocked(predict)).not.toHaveBeenCalled();
+    expect(vi.mocked(predictForCheck)).not.toHaveBeenCalled();
   });
 });
