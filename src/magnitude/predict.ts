@@ -299,6 +299,7 @@ class Phase {
       end: undefined,
       tensor,
       gradient,
+      statistics: h.statistics,
     });
   }
 
@@ -577,6 +578,7 @@ class Phase {
       end: undefined,
       tensor: this.build ? id : undefined,
       gradient: undefined,
+      statistics: undefined,
     });
   }
 }

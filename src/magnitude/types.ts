@@ -158,6 +158,12 @@ export interface HazardSite {
    * its terms are gradients, judged at the loss scale as gradient tensors are
    */
   gradient?: boolean;
+  /**
+   * a norm-sum-of-squares site whose statistics (a batch norm's channels after a convolution) each have a spread of
+   * their own, independent between statistics: each a scaled chi-square of `dof` degrees of freedom about the draw's
+   * common scale, and `ownLogVar` the part of the input's ln-variance (its mean over the statistics) that makes
+   */
+  statistics?: { dof: number; ownLogVar: number };
 }
 
 /** The magnitude engine's output for one spec and plan. */

@@ -36,7 +36,15 @@ export interface Signal {
    * set by a weight layer on its output: the width whose random matrix made it, and the κ already counted for it
    * (κ = 2 for a linear map); a following activation replaces that κ by its own (SCIENCE.md §2.6)
    */
-  fresh?: { width: number; kappa: number };
+  fresh?: {
+    width: number;
+    kappa: number;
+    /**
+     * Var/E² over the weights' draw of one unit's (channel's) sum of squares over the batch × positions terms, where
+     * it differs from κ (a convolution's channel sums many patches of few inputs: about 2/fan_in). Set by conv2d
+     */
+    unitKappa?: number;
+  };
   /** whether the tensor is roughly zero-mean Gaussian (the input assumption of the activation rules) */
   gaussian: boolean;
   /**
@@ -323,6 +331,8 @@ export interface OpHazard {
    * gradient)
    */
   makes?: string;
+  /** a norm's statistics, each with a spread of its own: see HazardSite.statistics */
+  statistics?: { dof: number; ownLogVar: number };
 }
 
 /** Forward result of one layer. */

@@ -6,6 +6,7 @@ import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, LN2, normalSf, normalUpperQuantile } from "./_math.js";
+import { chiSquareTail } from "./chi-square.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
@@ -401,7 +402,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
-        `input rms exceeds ${limit} (predicted ${predicted}); probability ` +
+        `input rms exceeds ${limit} (predicted ${predicted})${site.statistics === undefined ? "" : ` in one of its ${Math.round(site.input.elements / Math.max(1, site.terms))} statistics, each spread by its own weights`}; probability ` +
         `${probabilityWords(value)} per step${side}${draft.notWidened ? " if the statistics are kept in the activation format" : ""} ` +
         `(${verdictWord(verdict)}).`
       );
@@ -658,15 +659,18 @@ function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: 
   const rows = Math.max(1, profile.elements / Math.max(1, site.terms));
   const t = context.thresholds;
   const first = context.activations.format === context.accumulate.format ? 1 : 0;
+  const own = site.statistics;
   // P(any row's sum reaches `level`) in one step, over draws
   const anyAbove = (level: number): number =>
     profile.rms > 0
-      ? overDraws(profile.rms, profile.log2Spread, (r) => {
-          const mean = features * r * r;
-          const sd = Math.sqrt(features * Math.max(0, law.kurtosis - 1)) * r * r;
-          const perRow = sd > 0 ? normalSf((level - mean) / sd) : mean >= level ? 1 : 0;
-          return anyOf(perRow, rows);
-        })
+      ? own !== undefined
+        ? ownSpreads(profile, own, features, law.kurtosis, rows, level)
+        : overDraws(profile.rms, profile.log2Spread, (r) => {
+            const mean = features * r * r;
+            const sd = Math.sqrt(features * Math.max(0, law.kurtosis - 1)) * r * r;
+            const perRow = sd > 0 ? normalSf((level - mean) / sd) : mean >= level ? 1 : 0;
+            return anyOf(perRow, rows);
+          })
       : 0;
   for (let k = first; k < 2; k++) {
     const limits = k === 0 ? context.activations : context.accumulate;
@@ -680,6 +684,20 @@ function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: 
     putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", value, criticalRms,
       atRisk, t.overflowFails, k === 0, NORM_SUM, profile.rms, k === 0);
   }
+}
+
+// P(any of `rows` statistics reaches `level`) when each has a spread of its own (HazardSite.statistics): statistic c's
+// mean square is r²·u_c, u_c a chi-square of k degrees of freedom over k (mean 1), independent between statistics, r²
+// the draw's common part, whose ln-variance is the tensor's less the statistics' own (their mean's, `ownLogVar`), with
+// the tensor's mean kept; the terms' own noise within a statistic, Var/E² = (κ − 1)/N, adds to the 2/k of the chi-square
+// (Satterthwaite 1946, matched variance). 1 − (1 − p)^rows over the common draws.
+function ownSpreads(profile: MagnitudeProfile, own: { dof: number; ownLogVar: number }, features: number, kurtosis: number, rows: number, level: number): number {
+  const spread = 2 * LN2 * profile.log2Spread;
+  const V = spread * spread;
+  const common = Math.max(V - own.ownLogVar, 0);
+  const rms = profile.rms * Math.exp((V - common) / 4);
+  const dof = 2 / (2 / own.dof + Math.max(0, kurtosis - 1) / features);
+  return overDraws(rms, Math.sqrt(common) / (2 * LN2), (r) => anyOf(chiSquareTail(dof, (dof * level) / (features * r * r)), rows));
 }
 
 // The level a decreasing probability of passing it, `anyAbove`, takes the value `p` at: bisection on log2 of the level

@@ -62,9 +62,33 @@ export function paddingShares(t: TapCounts): { inside: number; channelMean: numb
   return { inside: r.inside * c.inside, channelMean: r.channelMean * c.channelMean };
 }
 
+/**
+ * One channel's sum of squares over the T = batch × pixels terms, Σ_t (w_c·p_t + b_c)², is a Gaussian quadratic form
+ * in the channel's own weights: Var/E² = 2·tr G²/(tr G)² = 2·(1/T + the pairs' mean E[c²]), c the cosine of two
+ * terms' patches with the bias (moments of a Gaussian quadratic form, as the dense layer's batch spread); a patch of
+ * fan_in values whose mean cosine is c̄ spreads by (1 − c̄²)²/fan_in about it (Fisher 1915). For unrelated patches it
+ * is about 2/fan_in, where the tensor's spread counts 2 per channel (own algebra; He et al. 2015 initialisation:
+ * ‖w_c‖² is var·χ² of fan_in)
+ */
+function unitSpread(ctx: OpContext, layer: GraphLayer, input: Signal, output: Signal): void {
+  const fresh = output.fresh;
+  if (fresh === undefined || !(output.q > 0) || !(input.q > 0)) return;
+  const w = weightOf(layer, "weight");
+  const biasWeight = maybeWeight(layer, "bias");
+  const b = (biasWeight === undefined ? 0 : ctx.variance(biasWeight)) / output.q;
+  const a = 1 - b;
+  const fanIn = Math.max(w.fanIn, 1);
+  const pairSquare = (mean: number): number => a * a * (mean * mean + (1 - mean * mean) ** 2 / fanIn) + 2 * a * b * mean + b * b;
+  const batch = Math.max(ctx.batch, 1);
+  const terms = batch * positionCount(layer.output);
+  const D = 1 / terms + (1 / batch - 1 / terms) * pairSquare(positionCorrelationOf(input)) + (1 - 1 / batch) * pairSquare(sampleCorrelationOf(input));
+  output.fresh = { ...fresh, unitKappa: 2 * Math.min(D, 1) };
+}
+
 export const conv2dRule: AnalyticRule<DenseStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<DenseStash> {
     const result = linearForward(ctx, layer, input, "conv2d");
+    unitSpread(ctx, layer, input, result.output);
     const taps = tapCounts(layer);
     if (taps === undefined) return result;
     const { inside, channelMean } = paddingShares(taps);

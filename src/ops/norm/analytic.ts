@@ -106,6 +106,11 @@ export const normRule: AnalyticRule<NormStash> = {
     const normalisedCorrelation =
       normalisedSecond > 0 ? { sample: Math.min(normalisedSampleShared / normalisedSecond, 1), position: Math.min(normalisedPositionShared / normalisedSecond, 1) } : { sample: 0, position: 0 };
     const terms = normTerms(layer, ctx.batch);
+    // a batch norm's channels right after a convolution: each channel's statistic is a Gaussian quadratic form in its
+    // own weights, a scaled chi-square of 2/κ_unit degrees of freedom (Satterthwaite 1946: matched mean and variance),
+    // independent between channels; the κ/width the convolution added to the tensor's spread is their mean's
+    const fresh = input.fresh;
+    const statistics = layer.family === "batch-norm" && fresh !== undefined && fresh.unitKappa !== undefined && fresh.unitKappa > 0 && fresh.width > 0 ? { dof: 2 / fresh.unitKappa, ownLogVar: fresh.kappa / fresh.width } : undefined;
     const stash: NormStash = { input, denominator, normalisedSecond, gainSquared, normalisedCorrelation };
     // each channel has its own variance after a rectifier whose channels' means differ (see channels.ts)
     const spread = input.channelSpread;
@@ -133,6 +138,7 @@ export const normRule: AnalyticRule<NormStash> = {
           terms,
           guarded: false,
           detail: ctx.details ? () => `${layer.family} sums the squares of ${terms} elements per statistic` : "",
+          statistics,
         },
       ],
       stash,
