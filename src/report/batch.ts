@@ -77,6 +77,45 @@ export function worstRiskText(worst: Pick<WorstSummary, "label" | "value" | "mea
   return `${worst.label} ${formatRiskValue(worst)}${worst.scope === "network" ? " across the network (most in this layer)" : ""}`;
 }
 
+/**
+ * What a share in a row's risk cell is a share of, by finding kind (the catalogue's descriptions, src/risk/catalogue.ts;
+ * the optimizer's lost updates, src/scale/optimizer.ts).
+ */
+const SHARE_OF: Readonly<Record<string, string>> = {
+  "gradient-energy-flushed": "of the squared norm",
+  "flushed-values": "of the nonzero elements",
+  "probability-mass-flushed": "of the probability mass",
+  "subnormal-values": "of the squared norm",
+  "gradient-sum-flush": "of the squared norm",
+  "second-moment-flushed": "of the elements",
+  "lost-updates": "of the update's squared norm",
+};
+
+/**
+ * A worst finding's risk cell in the batch table with what its number is: a probability per step ("overflow probability 1
+ * per step"), a share of what ("flushed energy 68.3% of the squared norm"), a relative error ("accumulation error 0.022
+ * relative to the sum", √n·u), binades of headroom, or an expected count of elements per step (Adam's zero second
+ * moments, the catalogue's "expected per step").
+ */
+export function worstRiskCell(worst: Pick<WorstSummary, "kind" | "label" | "value" | "measure" | "scope">): string {
+  const value = formatRiskValue(worst);
+  const network = worst.scope === "network" ? " across the network (most in this layer)" : "";
+  switch (worst.measure) {
+    case "probability":
+      return `${worst.label} probability ${value} per step${network}`;
+    case "share": {
+      const of = SHARE_OF[worst.kind];
+      return `${worst.label} ${value}${of === undefined ? "" : ` ${of}`}${network}`;
+    }
+    case "relative-error":
+      return `${worst.label} ${value} relative to the sum${network}`;
+    case "count":
+      return `${worst.label} ${value} per step${network}`;
+    case "binades":
+      return `${worst.label} ${value}${network}`;
+  }
+}
+
 /** A loss scale as the cells write it: a power of two as 2^k, any other value as itself. */
 function scaleText(value: number): string {
   const k = Math.log2(value);
@@ -231,7 +270,8 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
     { title: "loss scale", align: "left" },
     { title: "window", align: "left" },
     { title: "worst tensor" },
-    { title: "risk", align: "right" },
+    // left, beside the tensor it is about: right-aligned, a short value sat at the far end of the longest one's field
+    { title: "risk", align: "left" },
   ];
   const cells = rows.map((row): Cell[] => {
     const lead: Cell[] = [row.index + 1, visible(row.file), ...(withVariants ? [visible(row.variant ?? "")] : [])];
@@ -250,7 +290,7 @@ export function renderBatchText(rows: readonly BatchRow[], options: BatchTextOpt
       s.lossScale.status === "not-evaluated" ? style.role("muted", scale.pick) : scale.pick,
       s.lossScale.status === "not-evaluated" ? "" : scale.window,
       s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
-      s.worst ? worstRiskText(s.worst) : "",
+      s.worst ? worstRiskCell(s.worst) : "",
     ];
   });
   let out = renderTable(columns, cells, { styleHeader: (text) => style.role("strong", text) });
@@ -430,7 +470,7 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
       s.lossScale.status === "not-evaluated" ? { markdown: "_not evaluated_" } : scale.pick,
       s.lossScale.status === "not-evaluated" ? "" : scale.window,
       s.worst ? `${s.worst.subject} (${s.worst.format})` : "",
-      s.worst ? worstRiskText(s.worst) : "",
+      s.worst ? worstRiskCell(s.worst) : "",
     ];
   });
   let out = `**headroom batch**: ${escapeMarkdown(batchCountLine(rows))}\n\n`;
@@ -443,7 +483,7 @@ export function renderBatchMarkdown(rows: readonly BatchRow[]): string {
       { title: "loss scale" },
       { title: "window" },
       { title: "worst tensor" },
-      { title: "risk", align: "right" as const },
+      { title: "risk" },
     ],
     cells,
   );

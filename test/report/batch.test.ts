@@ -13,6 +13,7 @@ import {
   renderBatchJsonl,
   renderBatchMarkdown,
   renderBatchText,
+  worstRiskCell,
   worstRiskText,
 } from "../../src/report/batch.js";
 import { createStyle } from "../../src/report/style.js";
@@ -121,11 +122,11 @@ describe("renderBatchText", () => {
     expect(lines[3]).toContain("2^12");
     expect(lines[3]).toContain("2^8..2^15");
     expect(lines[3]).toContain("block-3/activation-gradient (binary16)");
-    expect(lines[3]).toMatch(/overflow 3\.2e-5$/);
+    expect(lines[3]).toMatch(/overflow probability 3\.2e-5 per step$/);
     expect(lines[4]).toMatch(/^3 {2}sweep\/broken\.yaml\s+error$/);
     expect(lines[5]).toContain("none");
     expect(lines[5]).toContain("empty");
-    expect(lines[5]).toMatch(/flushed energy 12\.5%$/);
+    expect(lines[5]).toMatch(/flushed energy 12\.5% of the squared norm$/);
   });
   test("lists errors with positions and ends with counts and the estimate note", () => {
     expect(text).toContain("could not be evaluated\n  sweep/broken.yaml:4:10: training.batch");
@@ -331,5 +332,37 @@ describe("the loss-scale columns of the batch table", () => {
     expect(lines[3]!.slice(column, column + 4)).toBe("2^12");
     const windowColumn = header.indexOf("window");
     expect(lines[2]!.slice(windowColumn).startsWith("2^-9..2^18")).toBe(true);
+  });
+});
+
+describe("the risk column of the batch table", () => {
+  const text = renderBatchText(ROWS);
+  test("starts where its header does, right after the worst tensor's column, on every row that has a risk", () => {
+    const lines = text.split("\n");
+    const column = lines[0]!.indexOf("risk");
+    // the subjects of rows 2 and 4 differ in length (27 and 21 characters): left-aligned, both risks start at the header
+    expect(lines[3]!.slice(column)).toBe("overflow probability 3.2e-5 per step");
+    expect(lines[5]!.slice(column)).toBe("flushed energy 12.5% of the squared norm");
+    // two spaces after the longest subject, as every column of the table
+    expect(lines[3]!.slice(column - 2 - "block-3/activation-gradient (binary16)".length, column)).toBe("block-3/activation-gradient (binary16)  ");
+  });
+
+  test("says what each number is (README, Verdicts: overflow a per-step probability, flushed energy a share of the squared norm, accumulation error √n·u relative)", () => {
+    const cell = (kind: string, label: string, value: number, measure: "probability" | "share" | "binades" | "relative-error" | "count") =>
+      worstRiskCell({ kind, label, value, measure, scope: "subject" });
+    expect(cell("overflow", "overflow", 1, "probability")).toBe("overflow probability 1 per step");
+    expect(cell("norm-sum-overflow", "norm sum overflow", 0.99, "probability")).toBe("norm sum overflow probability 0.99 per step");
+    expect(cell("gradient-energy-flushed", "flushed energy", 0.683, "share")).toBe("flushed energy 68.3% of the squared norm");
+    expect(cell("flushed-values", "flushed", 0.432, "share")).toBe("flushed 43.2% of the nonzero elements");
+    // √32 · 2^-8 = 0.0221 (bfloat16's unit roundoff 2^-8, IEEE 754-2019 §3.6 precision 8 bits)
+    expect(cell("accumulation-error", "accumulation error", Math.sqrt(32) * 2 ** -8, "relative-error")).toBe("accumulation error 0.022 relative to the sum");
+    expect(cell("little-headroom", "headroom", 0.5, "binades")).toBe("headroom 0.5 binades");
+    expect(worstRiskCell({ kind: "optimizer-epsilon-flushed", label: "zero second moments", value: 425_200, measure: "count", scope: "network" })).toBe(
+      "zero second moments 425.2k elements per step across the network (most in this layer)",
+    );
+  });
+
+  test("Markdown says the same", () => {
+    expect(renderBatchMarkdown(ROWS)).toContain("| block-3/activation-gradient (binary16) | overflow probability 3.2e-5 per step |");
   });
 });
