@@ -131,33 +131,73 @@ export class ProfileDrawBounds {
 
   /** {@link probabilityAnyAboveBounds}(profile, t) */
   anyAbove(t: number): [number, number] {
-    if (!this.fast) return probabilityAnyAboveBounds(this.profile, t);
+    this.anyAboveInto(t, SCRATCH, 0);
+    return pair(SCRATCH[0]!, SCRATCH[1]!);
+  }
+
+  /**
+   * {@link anyAbove}'s bounds into `into` at `at` (low) and `at + 1` (high), without an array per call: the window's
+   * search asks for them at every exponent it visits, for every tensor, and keeps only the two numbers
+   */
+  anyAboveInto(t: number, into: Float64Array, at: number): void {
+    if (!this.fast) {
+      const b = probabilityAnyAboveBounds(this.profile, t);
+      into[at] = b[0];
+      into[at + 1] = b[1];
+      return;
+    }
     // laws.ts drawBounds on anyOf(above(r, t), n), the draws beyond ±9 allowed up to 1
     const a = anyOf(this.law.above(this.lowest, t), this.count);
     const b = anyOf(this.law.above(this.highest, t), this.count);
-    if (a === b) return pair(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
-    return pair(Math.max(0, Math.min(a, b) * (1 - 1e-12)), Math.min(1, Math.max(a, b) * (1 + 1e-12) + 2.3e-19));
+    if (a === b) {
+      into[at] = into[at + 1] = Math.min(1, Math.max(0, a));
+      return;
+    }
+    into[at] = Math.max(0, Math.min(a, b) * (1 - 1e-12));
+    into[at + 1] = Math.min(1, Math.max(a, b) * (1 + 1e-12) + 2.3e-19);
   }
 
   /** {@link energyBelowBounds}(profile, t) */
   energyBelow(t: number): [number, number] {
-    if (!this.fast) return energyBelowBounds(this.profile, t);
+    this.energyBelowInto(t, SCRATCH, 0);
+    return pair(SCRATCH[0]!, SCRATCH[1]!);
+  }
+
+  /** {@link energyBelow}'s bounds into `into` at `at` (low) and `at + 1` (high), as {@link anyAboveInto} */
+  energyBelowInto(t: number, into: Float64Array, at: number): void {
+    if (!this.fast) {
+      const b = energyBelowBounds(this.profile, t);
+      into[at] = b[0];
+      into[at + 1] = b[1];
+      return;
+    }
     // laws.ts drawBounds on energyBelow(r, t) with the inner draws
     const law = this.law;
     const a = law.energyBelow(this.lowest, t);
     const b = law.energyBelow(this.highest, t);
-    if (a === b) return pair(Math.min(1, Math.max(0, a)), Math.min(1, Math.max(0, a)));
+    if (a === b) {
+      into[at] = into[at + 1] = Math.min(1, Math.max(0, a));
+      return;
+    }
     const outerLow = Math.max(0, Math.min(a, b) * (1 - 1e-12));
     const outerHigh = Math.min(1, Math.max(a, b) * (1 + 1e-12));
-    if (outerLow === outerHigh) return pair(outerLow, outerHigh);
+    if (outerLow === outerHigh) {
+      into[at] = outerLow;
+      into[at + 1] = outerHigh;
+      return;
+    }
     const c = law.energyBelow(this.innerLow, t);
     const d = law.energyBelow(this.innerHigh, t);
     const inside = 1 - INNER_DRAW_OUTSIDE;
     const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
     const high = Math.min(1, (Math.max(c, d) * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9));
-    return pair(Math.max(outerLow, low), Math.min(outerHigh, high));
+    into[at] = Math.max(outerLow, low);
+    into[at + 1] = Math.min(outerHigh, high);
   }
 }
+
+// the bounds of one call to ProfileDrawBounds' array-returning methods, before they are copied out
+const SCRATCH = new Float64Array(2);
 
 // [low, high] as an array of doubles from its first use (see laws.ts `bounds`)
 function pair(low: number, high: number): [number, number] {

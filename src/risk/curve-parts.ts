@@ -20,6 +20,9 @@ export interface LossScaleCurveParts {
   /** the cheap bounds of {@link LossScaleCurves}, not memoised */
   overflowRiskBounds(log2Scale: number): readonly [number, number];
   flushedEnergyBounds(log2Scale: number): readonly [number, number];
+  /** the cheap bounds into `into` at `at` (low) and `at + 1` (high), without an array per call */
+  overflowRiskBoundsInto(log2Scale: number, into: Float64Array, at: number): void;
+  flushedEnergyBoundsInto(log2Scale: number, into: Float64Array, at: number): void;
 }
 
 /**
@@ -107,17 +110,39 @@ class CurveParts implements LossScaleCurveParts {
   // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile against
   // t·2^−k, exactly (powers of two), without a scaled copy per exponent
   overflowRiskBounds(k: number): readonly [number, number] {
-    const level = this.limits.overflowLevel * 2 ** -k;
-    const a = this.startBounds.anyAbove(level);
-    const b = this.same ? a : this.endBounds.anyAbove(level);
-    return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+    this.overflowRiskBoundsInto(k, BOTH, 0);
+    return [BOTH[0]!, BOTH[1]!];
   }
 
   flushedEnergyBounds(k: number): readonly [number, number] {
+    this.flushedEnergyBoundsInto(k, BOTH, 0);
+    return [BOTH[0]!, BOTH[1]!];
+  }
+
+  overflowRiskBoundsInto(k: number, into: Float64Array, at: number): void {
+    const level = this.limits.overflowLevel * 2 ** -k;
+    this.startBounds.anyAboveInto(level, BOTH, 2);
+    if (this.same) {
+      BOTH[4] = BOTH[2]!;
+      BOTH[5] = BOTH[3]!;
+    } else this.endBounds.anyAboveInto(level, BOTH, 4);
+    into[at] = Math.max(BOTH[2]!, BOTH[4]!);
+    into[at + 1] = Math.max(BOTH[3]!, BOTH[5]!);
+  }
+
+  flushedEnergyBoundsInto(k: number, into: Float64Array, at: number): void {
     const level = this.limits.flushBound * 2 ** -k;
     // the worse of two values lies between the worse of their lower and the worse of their upper bounds
-    const a = this.startBounds.energyBelow(level);
-    const b = this.same ? a : this.endBounds.energyBelow(level);
-    return [Math.max(a[0], b[0]), Math.max(a[1], b[1])];
+    this.startBounds.energyBelowInto(level, BOTH, 2);
+    if (this.same) {
+      BOTH[4] = BOTH[2]!;
+      BOTH[5] = BOTH[3]!;
+    } else this.endBounds.energyBelowInto(level, BOTH, 4);
+    into[at] = Math.max(BOTH[2]!, BOTH[4]!);
+    into[at + 1] = Math.max(BOTH[3]!, BOTH[5]!);
   }
 }
+
+// the start's bounds at 2 and 3, the end's at 4 and 5, and the array-returning methods' result at 0 and 1, before
+// they are copied out
+const BOTH = new Float64Array(6);

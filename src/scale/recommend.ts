@@ -327,6 +327,14 @@ class BoundedCurves implements ScaledTensorCurves {
     return this.parts.flushedEnergyBounds(k);
   }
 
+  overflowRiskBoundsInto(k: number, into: Float64Array, at: number): void {
+    this.parts.overflowRiskBoundsInto(k, into, at);
+  }
+
+  flushedEnergyBoundsInto(k: number, into: Float64Array, at: number): void {
+    this.parts.flushedEnergyBoundsInto(k, into, at);
+  }
+
   overflowRiskUpper(k: number): number {
     this.overflowUppers(k);
     return Math.max(this.overflowStart, this.overflowEnd);
@@ -360,6 +368,8 @@ const PAIR = new Float64Array(2);
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing
 const ENCLOSURE = new Float64Array(2);
+// one tensor's flushed-share bounds in the simulation's flushing test
+const FLUSHED = new Float64Array(2);
 // Bounds on one profile's any-above probability at t into `into` (low NaN when there is none). Where the law has moment
 // bounds (src/scale/overflow-enclosure.ts): first the shifted tails (two normal tails), which settle a tensor far from
 // t alone; else, at a spread of a binade or more, the moment bounds (a few normal tails more, far tighter, both ways).
@@ -469,13 +479,16 @@ export function dynamicModel(
           // once per tensor and point: its cheap bound at the lowest scale the simulation takes, which then serves every
           // scale (widened for the rounding of evaluations at two thresholds)
           known.anchored[i] = 1;
-          if (draws.energyBelow(limits.flushBound / lowestScale)[1] <= tolerance * (1 - 1e-9)) {
+          draws.energyBelowInto(limits.flushBound / lowestScale, FLUSHED, 0);
+          if (FLUSHED[1]! <= tolerance * (1 - 1e-9)) {
             known.tolerated[i] = lowestScale;
             continue;
           }
         }
         // whether the share exceeds the tolerance, integrating only when the bounds do not tell
-        const [low, high] = draws.energyBelow(bound);
+        draws.energyBelowInto(bound, FLUSHED, 0);
+        const low = FLUSHED[0]!;
+        const high = FLUSHED[1]!;
         if (!(high <= tolerance) && (low > tolerance || energyBelow(point.profile(i), bound) > tolerance)) return true;
         known.tolerated[i] = Math.min(known.tolerated[i]!, scale);
       }

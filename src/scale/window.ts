@@ -19,6 +19,9 @@ export interface ScaledTensorCurves {
   overflowRiskBounds?(log2Scale: number): readonly [number, number];
   /** optional cheap bounds [low, high] on flushedEnergy: the search then integrates only where they do not decide */
   flushedEnergyBounds?(log2Scale: number): readonly [number, number];
+  /** optional: the cheap bounds into `into` at `at` (low) and `at + 1` (high), asked for in place of the above */
+  overflowRiskBoundsInto?(log2Scale: number, into: Float64Array, at: number): void;
+  flushedEnergyBoundsInto?(log2Scale: number, into: Float64Array, at: number): void;
   /** optional upper bound on overflowRisk tighter than the bounds', at more cost: asked for before integrating */
   overflowRiskUpper?(log2Scale: number): number;
   /** optional upper bound on flushedEnergy tighter than the bounds', at more cost: asked for before integrating */
@@ -382,9 +385,14 @@ class WindowSearch {
   private cheapBounds(curve: Curve, i: number, table: Table): void {
     if (((table.flags[i] as number) & HAS_BOUNDS) !== 0) return;
     const t = this.tensors[i] as ScaledTensorCurves;
-    const b = curve === "overflow" ? t.overflowRiskBounds?.(table.k) : t.flushedEnergyBounds?.(table.k - this.flushShift);
-    table.data[4 * i] = b === undefined ? -Infinity : b[0];
-    table.data[4 * i + 1] = b === undefined ? Infinity : b[1];
+    // straight into the table where the curve can (no array per tensor and exponent)
+    const into = curve === "overflow" ? t.overflowRiskBoundsInto : t.flushedEnergyBoundsInto;
+    if (into !== undefined) into.call(t, curve === "overflow" ? table.k : table.k - this.flushShift, table.data, 4 * i);
+    else {
+      const b = curve === "overflow" ? t.overflowRiskBounds?.(table.k) : t.flushedEnergyBounds?.(table.k - this.flushShift);
+      table.data[4 * i] = b === undefined ? -Infinity : b[0];
+      table.data[4 * i + 1] = b === undefined ? Infinity : b[1];
+    }
     table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
     this.mark(curve, table, i);
   }

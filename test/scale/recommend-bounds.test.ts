@@ -85,6 +85,12 @@ describe("ProfileDrawBounds", () => {
       for (const t of THRESHOLDS) {
         expect(fast.anyAbove(t)).toEqual(probabilityAnyAboveBounds(p, t));
         expect(fast.energyBelow(t)).toEqual(energyBelowBounds(p, t));
+        // the in-place forms, written at an offset, give the same numbers
+        const into = new Float64Array(5);
+        fast.anyAboveInto(t, into, 1);
+        fast.energyBelowInto(t, into, 3);
+        expect([into[1], into[2]]).toEqual(probabilityAnyAboveBounds(p, t));
+        expect([into[3], into[4]]).toEqual(energyBelowBounds(p, t));
         checked++;
       }
     }
