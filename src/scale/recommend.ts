@@ -173,8 +173,40 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
  */
 export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], limits: RangeLimits, profiles?: readonly GradientProfiles[]): ScaledTensorCurves[] {
   // the window keeps values and bounds itself: the parts without memos
-  return lossScaleCurveParts(tensors, limits, profiles ?? gradientProfiles(tensors)).map((c) => new BoundedCurves(c, limits));
+  const shared = profiles ?? gradientProfiles(tensors);
+  // the shifted tails' levels depend on the counts alone: one table serves every format's curves of these profiles
+  let levels = LEVEL_TABLES.get(shared);
+  if (levels === undefined) LEVEL_TABLES.set(shared, (levels = new ShiftLevelTable(shared.length)));
+  const table = levels;
+  return lossScaleCurveParts(tensors, limits, shared).map((c, i) => new BoundedCurves(c, limits, table, i));
 }
+
+/**
+ * The shifted tails' levels (overflow-enclosure.ts shiftLevels) of each tensor's start count at 6i … 6i + 2 and its
+ * end count at 6i + 3 … 6i + 5, made on first use: one typed array for all the tensors of an answer, shared by the
+ * curves of its formats (the gradient format's and bfloat16's remedy), instead of a small one per tensor and format.
+ */
+class ShiftLevelTable {
+  readonly levels: Float64Array;
+  private readonly made: Uint8Array;
+  constructor(n: number) {
+    this.levels = new Float64Array(6 * n);
+    this.made = new Uint8Array(n);
+  }
+
+  /** the offset of tensor i's levels, made now from its profiles where they are not yet */
+  at(i: number, start: MagnitudeProfile, end: MagnitudeProfile): number {
+    const base = 6 * i;
+    if (this.made[i] === 0) {
+      shiftLevels(start.elements * (1 - start.zeroFraction), this.levels, base);
+      shiftLevels(end.elements * (1 - end.zeroFraction), this.levels, base + 3);
+      this.made[i] = 1;
+    }
+    return base;
+  }
+}
+// each set of gradient profiles' level table (an answer's profiles serve several formats)
+const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
 
 // whether `tensors` are the tensors of `profiles`, in order (the profiles made from them then serve them)
 function sameTensors(tensors: readonly TensorPrediction[], profiles: readonly GradientProfiles[]): boolean {
@@ -202,9 +234,6 @@ class BoundedCurves implements ScaledTensorCurves {
   private flushK = NaN;
   private flushStart = 1;
   private flushEnd = 1;
-  // the shifted tails' levels of the start's count at 0 … 2 and the end's at 3 … 5 (they depend on the count alone),
-  // made on first use
-  private levels: Float64Array | undefined;
   // the shifted tails' lower bound at roughK (overflowRiskRoughLower), and roughOf's last profile's
   private roughK = NaN;
   private roughLow = 0;
@@ -213,6 +242,9 @@ class BoundedCurves implements ScaledTensorCurves {
   constructor(
     private readonly parts: LossScaleCurveParts,
     private readonly limits: RangeLimits,
+    // the shifted tails' levels of the start's count at 6·index … + 2 and the end's at + 3 … + 5 (ShiftLevelTable)
+    private readonly levels: ShiftLevelTable,
+    private readonly index: number,
   ) {
     this.id = parts.id;
     this.edgeGuessesLog2 = parts.edgeGuessesLog2;
@@ -226,29 +258,24 @@ class BoundedCurves implements ScaledTensorCurves {
   private overflowUppers(k: number): void {
     if (k === this.overflowK) return;
     const t = this.limits.overflowLevel * 2 ** -k;
-    const levels = this.levelsOf();
-    boundsOf(this.start, t, PAIR, levels, 0);
+    const base = this.levelsAt();
+    const levels = this.levels.levels;
+    boundsOf(this.start, t, PAIR, levels, base);
     this.overflowStart = PAIR[1] as number;
     this.overflowStartLow = PAIR[0] as number;
     if (this.same) {
       this.overflowEnd = this.overflowStart;
       this.overflowEndLow = this.overflowStartLow;
     } else {
-      boundsOf(this.end, t, PAIR, levels, 3);
+      boundsOf(this.end, t, PAIR, levels, base + 3);
       this.overflowEnd = PAIR[1] as number;
       this.overflowEndLow = PAIR[0] as number;
     }
     this.overflowK = k;
   }
 
-  private levelsOf(): Float64Array {
-    if (this.levels === undefined) {
-      const levels = new Float64Array(6);
-      shiftLevels(this.start.elements * (1 - this.start.zeroFraction), levels, 0);
-      shiftLevels(this.end.elements * (1 - this.end.zeroFraction), levels, 3);
-      this.levels = levels;
-    }
-    return this.levels;
+  private levelsAt(): number {
+    return this.levels.at(this.index, this.start, this.end);
   }
 
   // The shifted tails' upper bound at k (two normal tails per profile, read off the fixed grid of the normal tail:
@@ -282,8 +309,9 @@ class BoundedCurves implements ScaledTensorCurves {
       this.roughLowOf = 0;
       return 1;
     }
-    const levels = this.levelsOf();
-    shiftBoundsTabled(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, PAIR, 0);
+    const base = this.levelsAt() + at;
+    const levels = this.levels.levels;
+    shiftBoundsTabled(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
     this.roughLowOf = PAIR[0]!;
     return PAIR[1]!;
   }
