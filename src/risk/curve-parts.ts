@@ -69,9 +69,21 @@ export function lossScaleCurveParts(
   limits: RangeLimits,
   profiles: readonly GradientProfiles[] = gradientProfiles(tensors),
 ): LossScaleCurveParts[] {
+  return curvePartsOf(profiles, limits, (p, edgeGuessesLog2) => new CurveParts(p, edgeGuessesLog2, limits));
+}
+
+/**
+ * Each profile's curve parts as `make` builds them from its profiles and its edge guesses (a {@link CurveParts} or a
+ * class extending it, one object per tensor), in order.
+ */
+export function curvePartsOf<T>(
+  profiles: readonly GradientProfiles[],
+  limits: RangeLimits,
+  make: (profiles: GradientProfiles, edgeGuessesLog2: { overflow: number; flush: number }, index: number) => T,
+): T[] {
   const overflowLog2 = Math.log2(limits.overflowLevel);
   const flushLog2 = Math.log2(limits.flushBound);
-  return profiles.map((p) => {
+  return profiles.map((p, i) => {
     const { start, end } = p;
     // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
     // once the bound comes within a few binades of the rms (rough: only the search's starting point)
@@ -82,12 +94,12 @@ export function lossScaleCurveParts(
       overflow: Math.floor(overflowLog2 - rmsLog2 - 2 - 3 * spread),
       flush: Math.ceil(flushLog2 - lowRmsLog2 + 4 + 3 * spread),
     };
-    return new CurveParts(p, edgeGuessesLog2, limits);
+    return make(p, edgeGuessesLog2, i);
   });
 }
 
-// One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles)
-class CurveParts implements LossScaleCurveParts {
+/** One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles). */
+export class CurveParts implements LossScaleCurveParts {
   readonly id: string;
   readonly start: MagnitudeProfile;
   readonly end: MagnitudeProfile;
@@ -97,7 +109,7 @@ class CurveParts implements LossScaleCurveParts {
   constructor(
     profiles: GradientProfiles,
     readonly edgeGuessesLog2: { overflow: number; flush: number },
-    private readonly limits: RangeLimits,
+    protected readonly limits: RangeLimits,
   ) {
     this.id = profiles.tensor.id;
     this.start = profiles.start;

@@ -6,7 +6,7 @@ import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
-import { gradientProfiles, lossScaleCurveParts, profilesOf, type GradientProfiles, type LossScaleCurveParts } from "../risk/curve-parts.js";
+import { CurveParts, curvePartsOf, gradientProfiles, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/tensor.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
 import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
@@ -178,7 +178,7 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   let levels = LEVEL_TABLES.get(shared);
   if (levels === undefined) LEVEL_TABLES.set(shared, (levels = new ShiftLevelTable(shared.length)));
   const table = levels;
-  return lossScaleCurveParts(tensors, limits, shared).map((c, i) => new BoundedCurves(c, limits, table, i));
+  return curvePartsOf(shared, limits, (p, edgeGuessesLog2, i) => new BoundedCurves(p, edgeGuessesLog2, limits, table, i));
 }
 
 /**
@@ -215,16 +215,12 @@ function sameTensors(tensors: readonly TensorPrediction[], profiles: readonly Gr
   return true;
 }
 
-// One tensor's curves of boundedLossScaleCurves: the parts' profiles and bounds, and each profile's segment upper
-// bounds at the exponent last asked (the window asks for a tensor's bound and then its value at one exponent; it keeps
-// both itself, src/scale/window.ts). One object per tensor, its methods shared.
-class BoundedCurves implements ScaledTensorCurves {
-  readonly id: string;
-  readonly edgeGuessesLog2: { overflow: number; flush: number };
+// One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
+// them, not one more per tensor and format), and each profile's segment upper bounds at the exponent last asked (the
+// window asks for a tensor's bound and then its value at one exponent; it keeps both itself, src/scale/window.ts). One
+// object per tensor, its methods shared.
+class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   readonly flushedEnergyGrowth: number | undefined;
-  private readonly start: MagnitudeProfile;
-  private readonly end: MagnitudeProfile;
-  private readonly same: boolean;
   private overflowK = NaN;
   private overflowStart = 1;
   private overflowEnd = 1;
@@ -240,18 +236,15 @@ class BoundedCurves implements ScaledTensorCurves {
   private roughLowOf = 0;
 
   constructor(
-    private readonly parts: LossScaleCurveParts,
-    private readonly limits: RangeLimits,
+    profiles: GradientProfiles,
+    edgeGuessesLog2: { overflow: number; flush: number },
+    limits: RangeLimits,
     // the shifted tails' levels of the start's count at 6·index … + 2 and the end's at + 3 … + 5 (ShiftLevelTable)
     private readonly levels: ShiftLevelTable,
     private readonly index: number,
   ) {
-    this.id = parts.id;
-    this.edgeGuessesLog2 = parts.edgeGuessesLog2;
-    this.start = parts.start;
-    this.end = parts.end;
-    this.same = parts.same;
-    this.flushedEnergyGrowth = growsAtMostEightfold(parts.start) && growsAtMostEightfold(parts.end) ? FLUSH_GROWTH : undefined;
+    super(profiles, edgeGuessesLog2, limits);
+    this.flushedEnergyGrowth = growsAtMostEightfold(this.start) && growsAtMostEightfold(this.end) ? FLUSH_GROWTH : undefined;
   }
 
   // each profile's upper bound at k: the moment bounds where the law has them (both ends kept), else the segment bound
@@ -345,22 +338,6 @@ class BoundedCurves implements ScaledTensorCurves {
     const a = energyBelow(startFirst ? this.start : this.end, bound);
     if ((startFirst ? this.flushEnd : this.flushStart) <= a) return a;
     return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
-  }
-
-  overflowRiskBounds(k: number): readonly [number, number] {
-    return this.parts.overflowRiskBounds(k);
-  }
-
-  flushedEnergyBounds(k: number): readonly [number, number] {
-    return this.parts.flushedEnergyBounds(k);
-  }
-
-  overflowRiskBoundsInto(k: number, into: Float64Array, at: number): void {
-    this.parts.overflowRiskBoundsInto(k, into, at);
-  }
-
-  flushedEnergyBoundsInto(k: number, into: Float64Array, at: number): void {
-    this.parts.flushedEnergyBoundsInto(k, into, at);
   }
 
   overflowRiskUpper(k: number): number {
