@@ -453,6 +453,21 @@ function disagreementLines(comparison: Comparison): string[] {
   const list = disagreements.slice(0, 20);
   for (const r of list) out.push(`  - ${describe(r)}`);
   if (disagreements.length > list.length) out.push(`  … and ${disagreements.length - list.length} more (see --json)`);
+  const { notCompared } = comparison;
+  if (notCompared.length > 0) {
+    const named = notCompared.slice(0, 6).map((r) => r.id).join(", ") + (notCompared.length > 6 ? `, and ${notCompared.length - 6} more` : "");
+    // one reason for all of them (src/simulate/compare.ts NONE_FINITE)
+    out.push(`  Not compared, ${plural(notCompared.length, "tensor")} with ${notCompared[0]!.notCompared!}: ${named}.`);
+  }
+  const adjusted = rows.find((r) => r.allMicroBatches !== undefined)?.allMicroBatches;
+  if (adjusted !== undefined) {
+    const { run, wanted } = adjusted;
+    out.push(
+      `  Weight gradients are predicted for the ${run} micro-batches run, not all ${wanted}: an element is zero after the sum only if each ` +
+        `micro-batch left it zero, z^(${run}/${wanted}) of the share z predicted for all ${wanted} (the micro-batches independent, as the ` +
+        `prediction takes them), and the rms of the nonzero elements keeps the sum's squared norm, which the run scales to the full sum's.`,
+    );
+  }
   return out;
 }
 
@@ -471,7 +486,9 @@ function describe(r: ComparisonRow): string {
   const flushedText = !Number.isNaN(r.predictedNonzeroFlushed) && r.measuredNonzeroFlushed !== r.predictedNonzeroFlushed
     ? `; nonzero elements flushed ${formatPercent(r.measuredNonzeroFlushed)} measured, ${formatPercent(r.predictedNonzeroFlushed)} predicted`
     : "";
-  return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}`;
+  const all = r.allMicroBatches;
+  const allText = all === undefined ? "" : `; predicted for the ${all.run} micro-batches run (for all ${all.wanted}: rms ${formatValue(all.rms)}, ${formatPercent(all.zeroFraction)} exact zeros)`;
+  return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}${allText}`;
 }
 
 function stepLines(result: SimulationResult): string[] {
@@ -598,15 +615,17 @@ export function renderSimulationJson(report: SimulationReport): string {
                 flushed: finite(r.predictedFlushed),
                 overflow: finite(r.predictedOverflow),
                 ...(r.fullSizeRms !== undefined ? { fullSizeRms: r.fullSizeRms } : {}),
+                ...(r.allMicroBatches !== undefined ? { allMicroBatches: { rms: r.allMicroBatches.rms, zeroFraction: r.allMicroBatches.zeroFraction } } : {}),
               },
               differenceBinades: finite(r.differenceBinades),
               disagrees: r.disagrees,
+              ...(r.notCompared !== undefined ? { notCompared: r.notCompared } : {}),
             }
           : {}),
       };
     }),
     ...(comparison !== undefined
-      ? { tolerance: comparison.tolerance, disagreements: comparison.disagreements.map((r) => r.id), measuredOnly: comparison.measuredOnly, predictedOnly: comparison.predictedOnly }
+      ? { tolerance: comparison.tolerance, disagreements: comparison.disagreements.map((r) => r.id), notCompared: comparison.notCompared.map((r) => r.id), measuredOnly: comparison.measuredOnly, predictedOnly: comparison.predictedOnly }
       : {}),
     history: result.history,
     ...(result.steps > 0 ? { stepTrouble: stepTroubleJson(result) } : {}),

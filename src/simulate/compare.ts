@@ -82,6 +82,13 @@ export interface ComparisonRow {
   fullSizeRms?: number;
   /** log2(full-size prediction / prediction for the shrunk network) */
   sizeEffectBinades?: number;
+  /**
+   * a weight gradient summed over fewer micro-batches than the spec's: the prediction for all of them (its rms of the
+   * nonzero elements and share of exact zeros), which the row's predicted values take to the micro-batches run
+   */
+  allMicroBatches?: { rms: number; zeroFraction: number; run: number; wanted: number };
+  /** why the row is not compared (it then never disagrees): no finite element was measured, after an overflow upstream */
+  notCompared?: string;
   /** whether the row is outside the tolerance */
   disagrees: boolean;
 }
@@ -92,6 +99,8 @@ export interface Comparison {
   rows: ComparisonRow[];
   /** the rows outside the tolerance, largest rms difference first */
   disagreements: ComparisonRow[];
+  /** the rows with nothing to compare (`notCompared` says why), in the order measured */
+  notCompared: ComparisonRow[];
   /** measured tensors the prediction does not list */
   measuredOnly: string[];
   /** predicted tensors the simulation does not measure */
@@ -147,6 +156,24 @@ function nonzeroShare(share: number, zeroFraction: number): number {
   return zeroFraction < 1 ? share / (1 - zeroFraction) : 0;
 }
 
+/** Why a tensor with no finite element measured is not compared: its values are an overflow's, not the network's. */
+export const NONE_FINITE = "no finite element in the run (after an overflow upstream, which is the finding)";
+
+/**
+ * The prediction for a weight gradient summed over all `wanted` micro-batches, taken to the `run` ones a simulation
+ * executes (it scales their sum to the full sum's size: src/simulate/engine.ts missingScale). An element is zero after
+ * the sum only when every micro-batch left it zero, the micro-batches taken as independent as the prediction takes
+ * them (src/magnitude/predict.ts weightGradient: z_all = z_one^wanted), so z_run = z_all^(run/wanted); an embedding's
+ * untouched rows, e^(−lookups/rows) per micro-batch, follow it exactly. The run's scaling keeps the sum's squared
+ * norm, (1 − z)·rms² over the nonzero elements, so their rms is rms_all·√((1 − z_all)/(1 − z_run)).
+ */
+export function forMicroBatchesRun(profile: MagnitudeProfile, run: number, wanted: number): MagnitudeProfile {
+  const z = profile.zeroFraction;
+  if (!(run < wanted) || !(z > 0 && z < 1)) return profile;
+  const zeroFraction = z ** (run / wanted);
+  return { ...profile, zeroFraction, rms: profile.rms * Math.sqrt((1 - z) / (1 - zeroFraction)) };
+}
+
 /**
  * Pair a simulation's tensors with a prediction for the simulated network (and, optionally, one for the
  * full-size network) and find where they disagree.
@@ -172,32 +199,39 @@ export function compareWithPrediction(
     }
     const format = getFormat(measured.median.counts.format);
     const m = measured.median;
-    // no finite magnitude measured (all overflowed upstream): nothing to set against the prediction, NaN, a disagreement
-    const differenceBinades = !hasFiniteMagnitudes(m) ? NaN : m.rms > 0 && p.start.rms > 0 ? Math.log2(m.rms / p.start.rms) : m.rms === p.start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
+    // a weight gradient is measured on the sum of the micro-batches run: predicted for those
+    const { run, wanted } = result.microBatches;
+    const start = measured.role === "weight-gradient" ? forMicroBatchesRun(p.start, run, wanted) : p.start;
+    // no finite magnitude measured (all overflowed upstream): nothing to set against the prediction, NaN
+    const finite = hasFiniteMagnitudes(m);
+    const differenceBinades = !finite ? NaN : m.rms > 0 && start.rms > 0 ? Math.log2(m.rms / start.rms) : m.rms === start.rms ? 0 : m.rms > 0 ? Infinity : -Infinity;
     // 8-bit formats with scale factors: the prediction carries no scale, so flushed fractions are not compared
-    const predictedFlushed = scaled8 && format.bits === 8 ? NaN : predictedFlushedFraction(p.start, format, flushSubnormals);
+    const predictedFlushed = scaled8 && format.bits === 8 ? NaN : predictedFlushedFraction(start, format, flushSubnormals);
     const measuredNonzeroFlushed = nonzeroShare(m.counts.flushed, m.zeroFraction);
-    const predictedNonzeroFlushed = nonzeroShare(predictedFlushed, p.start.zeroFraction);
+    const predictedNonzeroFlushed = nonzeroShare(predictedFlushed, start.zeroFraction);
     const row: ComparisonRow = {
       id: measured.id,
       layer: measured.layer,
       role: measured.role,
       format: format.name,
       measured,
-      predictedRms: p.start.rms,
-      predictedLog2Spread: p.start.log2Spread,
-      predictedProfile: p.start,
+      predictedRms: start.rms,
+      predictedLog2Spread: start.log2Spread,
+      predictedProfile: start,
       differenceBinades,
-      predictedZeroFraction: p.start.zeroFraction,
+      predictedZeroFraction: start.zeroFraction,
       predictedFlushed,
       measuredNonzeroFlushed,
       predictedNonzeroFlushed,
-      predictedOverflow: predictedOverflowFraction(p.start, format),
+      predictedOverflow: predictedOverflowFraction(start, format),
       disagrees:
-        !(Math.abs(differenceBinades) <= tolerance.binades) ||
-        (!Number.isNaN(predictedFlushed) && !(Math.abs(zeroAfterStorage(m) - (p.start.zeroFraction + predictedFlushed)) <= tolerance.flushed)) ||
-        (!Number.isNaN(predictedFlushed) && crossesFlushedLevel(measuredNonzeroFlushed, predictedNonzeroFlushed, tolerance.flushedLevels)),
+        finite &&
+        (!(Math.abs(differenceBinades) <= tolerance.binades) ||
+          (!Number.isNaN(predictedFlushed) && !(Math.abs(zeroAfterStorage(m) - (start.zeroFraction + predictedFlushed)) <= tolerance.flushed)) ||
+          (!Number.isNaN(predictedFlushed) && crossesFlushedLevel(measuredNonzeroFlushed, predictedNonzeroFlushed, tolerance.flushedLevels))),
     };
+    if (!finite) row.notCompared = NONE_FINITE;
+    if (start !== p.start) row.allMicroBatches = { rms: p.start.rms, zeroFraction: p.start.zeroFraction, run, wanted };
     const f = full.get(measured.id);
     if (f !== undefined && result.shrink.shrunk) {
       row.fullSizeRms = f.start.rms;
@@ -208,5 +242,6 @@ export function compareWithPrediction(
   const measuredIds = new Set(result.tensors.map((t) => t.id));
   const predictedOnly = prediction.tensors.filter((t) => !measuredIds.has(t.id)).map((t) => t.id);
   const disagreements = rows.filter((r) => r.disagrees).sort((a, b) => distance(b) - distance(a));
-  return { tolerance, rows, disagreements, measuredOnly, predictedOnly };
+  const notCompared = rows.filter((r) => r.notCompared !== undefined);
+  return { tolerance, rows, disagreements, notCompared, measuredOnly, predictedOnly };
 }
