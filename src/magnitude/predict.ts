@@ -358,8 +358,8 @@ class Phase {
         signal = { ...signal };
         delete signal.featureCovariance;
       }
-      // the spread of two samples' cosines is followed through dense layers, activations and residual sums only
-      if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && layer.family !== "dense" && layer.family !== "activation" && layer.family !== "residual") {
+      // the spread of two samples' cosines is followed through dense layers, activations, norms and residual sums only
+      if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && !CARRIES_COSINE.has(layer.family)) {
         signal = { ...signal };
         delete signal.correlationSquare;
         delete signal.sharedLogVar;
@@ -614,6 +614,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
   return { layer, factor: { ratio: rms * rms, rule, source: initSource(init) }, parent: null };
 }
 
+const CARRIES_COSINE: ReadonlySet<string> = new Set(["dense", "activation", "residual", "layer-norm", "rms-norm", "batch-norm"]);
 const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "attention"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features

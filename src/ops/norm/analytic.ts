@@ -105,6 +105,8 @@ export const normRule: AnalyticRule<NormStash> = {
     const normalisedSampleShared = gainSquared > 0 ? Math.max((output.shared ?? 0) - biasVariance, 0) / gainSquared : 0;
     const normalisedCorrelation =
       normalisedSecond > 0 ? { sample: Math.min(normalisedSampleShared / normalisedSecond, 1), position: Math.min(normalisedPositionShared / normalisedSecond, 1) } : { sample: 0, position: 0 };
+    const cosineSquare = input.correlationSquare;
+    if (cosineSquare !== undefined && q > 0 && input.q > removed) output.correlationSquare = normCosineSquare(cosineSquare, sharedOf(input) / input.q, removed / input.q, (gainSquared * normalisedSecond) / q, biasVariance / q);
     const terms = normTerms(layer, ctx.batch);
     // a batch norm's channels right after a convolution: each channel's statistic is a Gaussian quadratic form in its
     // own weights, a scaled chi-square of 2/κ_unit degrees of freedom (Satterthwaite 1946: matched mean and variance),
@@ -238,6 +240,22 @@ export const normRule: AnalyticRule<NormStash> = {
     };
   },
 };
+
+/**
+ * E[c²] of two samples' output cosine (Signal.correlationSquare) from the input's E[c²] and mean c̄ = shared/q. The
+ * centring takes the same r·q (r = removed/q: a layer norm's μ², each sample's mean over its features; a batch norm's
+ * batch mean²) off every dot product of two samples and off every squared norm, so each pair's cosine maps linearly,
+ * c' = (c − r)/(1 − r); the division by each sample's own statistic leaves a cosine as it is (an RMS norm: r = 0). The
+ * gain, equal on every feature at initialisation, and the bias map it as a dense layer's weights and bias do, a·c' + b
+ * with a, b their shares of the output's q (the definitions of the layers; own algebra). Without this the next dense
+ * layer took the samples as alike as one sample (D = 1 in its batch spread, V = 2/width).
+ */
+export function normCosineSquare(cosineSquare: number, mean: number, removed: number, a: number, b: number): number {
+  const keep = 1 - removed;
+  const centredMean = (mean - removed) / keep;
+  const centredSquare = Math.max((cosineSquare - 2 * removed * mean + removed * removed) / (keep * keep), centredMean * centredMean);
+  return Math.min(Math.max(a * a * centredSquare + 2 * a * b * centredMean + b * b, 0), 1);
+}
 
 function channelCount(layer: GraphLayer): number {
   return layer.input.layout === "image" ? layer.input.channels : 1;
