@@ -29,14 +29,16 @@ export const ALL_BINARY32_PLAN: PrecisionPlan = {
  * The plans `headroom compare` evaluates when the spec names none of its own (our own names):
  * all binary32; binary16 storage with a binary32 master copy and a loss scale; bfloat16 storage with a binary32
  * master copy; bfloat16 with no master copy; 8-bit forward (e4m3) and backward (e5m2) with per-tensor scale
- * factors (Micikevicius et al. 2022) and a binary32 master copy, its gradients summed across workers and steps in a
- * binary32 buffer (8-bit recipes keep the all-reduce and accumulation wider than e5m2; common practice, from memory).
+ * factors (Micikevicius et al. 2022) and a binary32 master copy. Every one sums its gradients across workers and
+ * accumulation steps in binary32 (mixed-precision recipes keep the all-reduce and accumulation wider than the stored
+ * gradients; common practice, from memory), so no plan is judged on a sum the others are spared; the buffer counts in
+ * the memory only where there is a sum (workers × accumulation steps > 1) and the gradients are narrower.
  */
 export const STANDARD_PLANS: readonly PrecisionPlan[] = [
   ALL_BINARY32_PLAN,
-  { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32" },
-  { ...base, name: "bfloat16 with master copy", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", flushSubnormals: true },
-  { ...base, name: "bfloat16 only", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "bfloat16", masterWeights: "none", accumulate: "binary32", flushSubnormals: true },
+  { ...base, name: "binary16 with master copy", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", gradientSums: "binary32" },
+  { ...base, name: "bfloat16 with master copy", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", gradientSums: "binary32", flushSubnormals: true },
+  { ...base, name: "bfloat16 only", activations: "bfloat16", weights: "bfloat16", gradients: "bfloat16", optimizerStates: "bfloat16", masterWeights: "none", accumulate: "binary32", gradientSums: "binary32", flushSubnormals: true },
   { ...base, name: "8-bit with scale factors", activations: "e4m3", weights: "e4m3", gradients: "e5m2", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", gradientSums: "binary32", scaling: "tensor" },
 ];
 
@@ -106,6 +108,11 @@ export interface PlanComparison {
    */
   version: typeof COMPARISON_VERSION;
   spec: { name: string; source: string };
+  /**
+   * the gradient contributions summed into each update, workers × accumulation steps (added later in 2): where more
+   * than 1, the standard plans sum them in binary32 and the spec's own plans in their `gradient-sums` format
+   */
+  gradientContributions: number;
   /** best first */
   outcomes: PlanOutcome[];
   /** what the saved shares are against: every tensor in binary32 with no master copy, whether or not it was compared */
@@ -187,9 +194,11 @@ export interface CompareOptions {
  */
 export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): PlanComparison {
   const own = [spec.precision, ...spec.plans];
-  // a standard plan that one of the spec's own plans repeats (same formats and options) is listed once, by the spec's name
+  const contributions = gradientContributions(spec.training);
+  // a standard plan that one of the spec's own plans repeats (same formats and options) is listed once, by the spec's
+  // name; the sum format counts only where gradients are summed
   const plans =
-    options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s)) && !own.some((p) => p.name === s.name)), ...own];
+    options.plans ?? [...STANDARD_PLANS.filter((s) => !own.some((p) => samePlan(p, s, contributions > 1)) && !own.some((p) => p.name === s.name)), ...own];
 
   // every plan stores the same tensors: the baseline's bytes, the "saved" column's reference, follow from any plan's
   // check, whether or not the all-binary32 plan is among those compared (--only-spec-plans)
@@ -240,6 +249,7 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   return {
     version: COMPARISON_VERSION,
     spec: { name: spec.name, source: spec.source },
+    gradientContributions: contributions,
     outcomes: ranked,
     baseline: { name: "all binary32", plan: ALL_BINARY32_PLAN, bytes: referenceBytes ?? 0 },
     explanation: explain(ranked),
@@ -248,15 +258,16 @@ export function comparePlans(spec: NetworkSpec, options: CompareOptions = {}): P
   };
 }
 
-// the same format for every stored tensor role
-function sameStoredFormats(a: PrecisionPlan, b: PrecisionPlan): boolean {
+// the same format for every stored tensor role (the gradient sums' only where there are sums: a plan's `gradient-sums`
+// is judged and stored only when workers × accumulation steps > 1, src/risk/judge.ts)
+function sameStoredFormats(a: PrecisionPlan, b: PrecisionPlan, sums = true): boolean {
   return (
     a.activations === b.activations &&
     a.weights === b.weights &&
     a.gradients === b.gradients &&
     a.optimizerStates === b.optimizerStates &&
     a.masterWeights === b.masterWeights &&
-    gradientSumFormat(a) === gradientSumFormat(b)
+    (!sums || gradientSumFormat(a) === gradientSumFormat(b))
   );
 }
 
@@ -268,9 +279,9 @@ function sameStorage(a: PrecisionPlan, b: PrecisionPlan): boolean {
   );
 }
 
-function samePlan(a: PrecisionPlan, b: PrecisionPlan): boolean {
+function samePlan(a: PrecisionPlan, b: PrecisionPlan, sums: boolean): boolean {
   return (
-    sameStoredFormats(a, b) &&
+    sameStoredFormats(a, b, sums) &&
     a.accumulate === b.accumulate &&
     a.lossScale === b.lossScale &&
     a.scaling === b.scaling &&

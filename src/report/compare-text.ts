@@ -45,12 +45,19 @@ export function renderCompareText(comparison: PlanComparison, options: CompareTe
     rows,
     { indent: "  " },
   );
+  // where gradients are summed, how the plans sum them: the built-in ones alike, so none is judged on a sum the others are spared
+  const n = comparison.gradientContributions;
+  const sums =
+    n > 1
+      ? `; gradient sums: the built-in plans sum the ${n} gradient contributions of an update (workers × accumulation steps) in binary32, ` +
+        "a sum buffer counted per parameter where the gradients are narrower, and the spec's plans as written (`gradient-sums`, by default in the gradient format)"
+      : "";
   out += style.role(
     "muted",
     wrap(
       "per parameter: weights, master copy, gradients (and a sum buffer where gradients are summed in another format) and optimizer states; memory: the spec's parameters plus one step's stored activations " +
         `(block-scaled 8-bit tensors also hold one scale byte per ${MX_BLOCK.size} elements; a per-tensor scale, one number per tensor, is not counted); ` +
-        `saved: against ${comparison.baseline.name} (every tensor in binary32, no master copy: ${formatBytes(comparison.baseline.bytes)}).`,
+        `saved: against ${comparison.baseline.name} (every tensor in binary32, no master copy: ${formatBytes(comparison.baseline.bytes)})${sums}.`,
       width,
       "  ",
       "  ",

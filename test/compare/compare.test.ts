@@ -116,17 +116,21 @@ describe("plan costs", () => {
     expect(f32.cost.bytesPerParameter).toBe(16);
     expect(f32.cost.bytesPerActivation).toBe(4);
     const mixed = comparePlans(loaded.spec, { plans: only("binary16 with master copy") }).outcomes[0]!;
-    // weights 2 + master 4 + gradients 2 + states 4 + 4
-    expect(mixed.cost.bytesPerParameter).toBe(16);
+    // weights 2 + master 4 + gradients 2 + states 4 + 4, and the binary32 sum buffer 4 of the 8 workers' gradients
+    expect(loaded.spec.training.workers * loaded.spec.training.accumulationSteps).toBe(8);
+    expect(mixed.cost.bytesPerParameter).toBe(20);
     expect(mixed.cost.bytesPerActivation).toBe(2);
     const bare = comparePlans(loaded.spec, { plans: only("bfloat16 only") }).outcomes[0]!;
-    expect(bare.cost.bytesPerParameter).toBe(8);
+    // weights 2 + gradients 2 + states 2 + 2, and the sum buffer 4
+    expect(bare.cost.bytesPerParameter).toBe(12);
   });
 
   it("gives the memory saved against all binary32 even when that plan is not among those compared (--only-spec-plans)", async () => {
     process.chdir(ROOT);
-    const loaded = await loadSpec("specs/wide-classifier.yaml");
-    if (!loaded.ok) throw new Error("example does not load");
+    const example = await loadSpec("specs/wide-classifier.yaml");
+    if (!example.ok) throw new Error("example does not load");
+    // on one worker, so that no gradient is summed and no sum buffer counted
+    const loaded = { spec: { ...example.spec, training: { ...example.spec.training, workers: 1 } } };
     const bare = comparePlans(loaded.spec, { plans: STANDARD_PLANS.filter((p) => p.name === "bfloat16 only") }).outcomes[0]!;
     // 8 bytes per parameter against 16, 2 per activation element against 4: saved 1 − (8P + 2A)/(16P + 4A) = 1/2 exactly
     expect(bare.savedShare).toBeCloseTo(0.5, 12);
