@@ -6,7 +6,7 @@ import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, LN2, normalSf, normalUpperQuantile } from "./_math.js";
-import { chiSquareTail } from "./chi-square.js";
+import { chiSquareTail } from "../numeric/chi-square.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";

@@ -3,7 +3,7 @@
  * upper incomplete gamma function, by its series below x = a + 1 and its continued fraction (modified Lentz) above
  * (Press et al., Numerical Recipes in C, 2nd ed., §6.2, gser and gcf; ln Γ by Lanczos's approximation, §6.1, gammln;
  * from memory, checked against the closed forms of Abramowitz & Stegun 26.4.4 and 26.4.5 in
- * test/risk/chi-square.test.ts). Relative accuracy about 1e-10, far below the model's own uncertainty.
+ * test/numeric/chi-square.test.ts). Relative accuracy about 1e-10, far below the model's own uncertainty.
  */
 
 const LANCZOS = [76.18009172947146, -86.50532032941677, 24.01409824083091, -1.231739572450155, 0.1208650973866179e-2, -0.5395239384953e-5];

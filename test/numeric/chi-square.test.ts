@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { chiSquareTail, lnGamma } from "../../src/risk/chi-square.js";
+import { chiSquareTail, lnGamma } from "../../src/numeric/chi-square.js";
 import { normalPdf, normalSf } from "../../src/numeric/normal.js";
 
 // Closed forms for whole degrees of freedom (Abramowitz & Stegun 1964, §26.4; from memory, and elementary: repeated
