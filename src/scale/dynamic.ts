@@ -59,8 +59,11 @@ export interface OverflowBounds {
   readonly high: number;
   /** true once low and high are both the probability itself, exactly as overflowProbability gives it */
   readonly exact: boolean;
-  /** narrow the bounds (some work each call; exact after finitely many calls) */
-  narrow(): void;
+  /**
+   * narrow the bounds (some work each call; exact after finitely many calls); given the `goal` the caller compares the
+   * probability with, a call may stop early once the bounds lie wholly above or below it
+   */
+  narrow(goal?: number): void;
 }
 
 /** One point of the scale's trajectory (a change of scale, plus the first and last step). */
@@ -215,7 +218,7 @@ class Evaluation {
       }
       if (b.low >= 1) return true;
       if (b.high < 1) break;
-      b.narrow();
+      b.narrow(1);
     }
     // p > 0?
     for (;;) {
@@ -225,14 +228,14 @@ class Evaluation {
       }
       if (b.low > 0) break;
       if (b.high <= 0) return false;
-      b.narrow();
+      b.narrow(0);
     }
     const r = random();
     for (;;) {
       if (b.exact) return r < b.low;
       if (r < b.low) return true;
       if (r >= b.high) return false;
-      b.narrow();
+      b.narrow(r);
     }
   }
 

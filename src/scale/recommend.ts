@@ -925,7 +925,7 @@ class OverflowNarrowing implements OverflowBounds {
     }
   }
 
-  narrow(): void {
+  narrow(goal?: number): void {
     if (this.exact) return;
     const highs = this.highs;
     const n = highs.length;
@@ -1015,6 +1015,12 @@ class OverflowNarrowing implements OverflowBounds {
         } else {
           this.integrate(i);
           work -= 1;
+        }
+        // the products are the trees' roots here: once the bounds lie on one side of the caller's goal, the rest of
+        // the batch would only narrow what is already decided
+        if (goal !== undefined) {
+          this.update();
+          if (this.low > goal || this.high < goal) break;
         }
       }
       this.batch = Math.ceil(this.batch * 1.1);

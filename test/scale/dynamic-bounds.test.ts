@@ -65,6 +65,31 @@ describe("the dynamic-scale model's bounds", () => {
     expect(checked).toBe(60);
   });
 
+  it("contain the probability when each narrowing is given a goal to stop at, and still end on the model's own value", () => {
+    const model = dynamicModel(tensors, limits, DEFAULT_WINDOW_OPTIONS);
+    let stoppedEarly = 0;
+    for (const progress of [0, 0.25, 0.5, 1]) {
+      for (let log2 = 24; log2 >= -4; log2 -= 2) {
+        const scale = 2 ** log2;
+        const exact = model.overflowProbability(scale, progress);
+        const b = model.overflowBounds!(scale, progress);
+        // the simulation's goals: 1 (p ≥ 1?), 0 (p > 0?), then draws near and far from the probability
+        const goals = [1, 0, exact * (1 - 1e-6), Math.min(1, exact * 1.5 + 1e-9), exact * 0.25, exact];
+        for (let step = 0; !b.exact; step++) {
+          const goal = goals[step % goals.length]!;
+          b.narrow(goal);
+          expect(b.low).toBeLessThanOrEqual(exact);
+          expect(b.high).toBeGreaterThanOrEqual(exact);
+          if (!b.exact && (b.low > goal || b.high < goal)) stoppedEarly++;
+          expect(step).toBeLessThan(10_000);
+        }
+        expect(b.low).toBe(exact);
+        expect(b.high).toBe(exact);
+      }
+    }
+    expect(stoppedEarly).toBeGreaterThan(0);
+  });
+
   it("say whether any tensor flushes too much exactly as each tensor's integral does, in any order of scales", () => {
     const model = dynamicModel(tensors, limits, DEFAULT_WINDOW_OPTIONS);
     // scales up and down, as a dynamic scale moves (what one scale learns is reused at the others of its point)
