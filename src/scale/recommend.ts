@@ -146,11 +146,11 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   let gradients: TensorPrediction[] = [];
   let dynamic: DynamicScaleResult | null = null;
   if (window.empty || options.simulate === "always") {
-    const ids = new Set(curves.map((c) => c.id));
-    gradients = stored.filter((t) => ids.has(t.id));
+    // the curves are the profiles', one each in order, and ids are unique within a prediction (magnitude/types.ts): the
+    // stored tensors with a curve are the profiles' tensors, taken without a set of every id
+    gradients = profiles.map((p) => p.tensor);
     // the simulation fills in the other defaults of the settings itself
-    const shared = sameTensors(gradients, profiles) ? profiles : undefined;
-    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale, shared), {
+    dynamic = simulateDynamicScale(dynamicModel(gradients, limits, windowOptions, options.dynamic?.lowestScale ?? DEFAULT_DYNAMIC_SCALE.lowestScale, profiles), {
       steps: Math.max(1, Math.min(options.steps ?? 10_000, 1_000_000)),
       seed: options.seed ?? 1,
       horizonPoints: 8,
@@ -160,7 +160,7 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
 
   const sentences = describe(window, format, windowOptions, requested);
   const remedies =
-    window.empty && dynamic ? rankRemedies(windowWithout, new Map(gradients.map((t) => [t.id, t] as const)), window, windowOptions, plan, limits, dynamic, profiles) : [];
+    window.empty && dynamic ? rankRemedies(windowWithout, gradients, window, windowOptions, plan, limits, dynamic, profiles) : [];
   return { format, window, pick, requested, needed: !window.unscaledFits, options: windowOptions, sentences, remedies, dynamic };
 }
 
@@ -207,13 +207,6 @@ class ShiftLevelTable {
 }
 // each set of gradient profiles' level table (an answer's profiles serve several formats)
 const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
-
-// whether `tensors` are the tensors of `profiles`, in order (the profiles made from them then serve them)
-function sameTensors(tensors: readonly TensorPrediction[], profiles: readonly GradientProfiles[]): boolean {
-  if (tensors.length !== profiles.length) return false;
-  for (let i = 0; i < tensors.length; i++) if (tensors[i] !== profiles[i]!.tensor) return false;
-  return true;
-}
 
 // One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
 // them, not one more per tensor and format), and each profile's segment upper bounds at the exponent last asked (the
@@ -1252,7 +1245,8 @@ function unscaledWindowSentences(
 /** Remedies for an empty window, each with its effect computed, the working ones first and cheapest first. */
 function rankRemedies(
   windowWithout: WindowsOf,
-  byId: Map<string, TensorPrediction>,
+  // the tensors of `profiles`, in order (ids unique)
+  gradients: readonly TensorPrediction[],
   window: ScaleWindow,
   options: WindowOptions,
   plan: PrecisionPlan,
@@ -1278,7 +1272,8 @@ function rankRemedies(
     const set = new Set(held);
     if (told.some((t) => t.size === set.size && held.every((id) => t.has(id)))) continue;
     told.push(set);
-    const extra = held.reduce((sum, id) => sum + (byId.get(id)?.start.elements ?? 0) * (4 - gradientBytes), 0);
+    // a few held ids: looked up among the gradients, not through a map of every id
+    const extra = held.reduce((sum, id) => sum + (gradients.find((t) => t.id === id)?.start.elements ?? 0) * (4 - gradientBytes), 0);
     remedies.push({
       kind: "hold-in-binary32",
       works: !current.empty,
@@ -1301,12 +1296,10 @@ function rankRemedies(
   // 3. bfloat16 gradients: the same tensors against bfloat16's range
   if (plan.gradients !== "bfloat16") {
     const bf = gradientLimits({ ...plan, gradients: "bfloat16" }, "bfloat16");
-    const gradients = [...byId.values()];
-    const same = sameTensors(gradients, profiles);
-    const bfCurves = boundedLossScaleCurves(gradients, bf, same ? profiles : undefined);
+    const bfCurves = boundedLossScaleCurves(gradients, bf, profiles);
     // the same profiles against bfloat16's flush bound, a power of two apart from the gradient format's: the flushed
     // shares the first search learnt serve this one, so many binades apart (src/scale/window.ts FlushLike)
-    const shift = same ? flushShift(limits, bf, options) : null;
+    const shift = flushShift(limits, bf, options);
     const w = shift === null ? lossScaleWindow(bfCurves, options) : lossScaleWindows(bfCurves, options, { windows: windowWithout, shift })();
     remedies.push({
       kind: "bfloat16-gradients",
