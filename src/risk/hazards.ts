@@ -369,7 +369,16 @@ function softmaxTerm(origin: HazardCheck["origin"]): string {
 // which every sentence of the wording shares, rather than copied into one string of its own (see words.ts flat:
 // the pieces a sentence would keep alive are its site's name and a number, no more than the copy would be)
 function pieced(wording: number): boolean {
-  return wording === ACCUMULATION_ERROR || wording === ACCUMULATION_OVERFLOW || wording === GRADIENT_SUM_OVERFLOW || wording === GRADIENT_SUM_ERROR || wording === GRADIENT_SUM_FLUSH;
+  return (
+    wording === ACCUMULATION_ERROR ||
+    wording === ACCUMULATION_OVERFLOW ||
+    wording === GRADIENT_SUM_OVERFLOW ||
+    wording === GRADIENT_SUM_ERROR ||
+    wording === GRADIENT_SUM_FLUSH ||
+    wording === GRADIENT_ACCUMULATION_ERROR ||
+    wording === GRADIENT_ACCUMULATION_OVERFLOW ||
+    wording === GRADIENT_ACCUMULATION_FLUSH
+  );
 }
 
 // the words naming a side of the horizon, made once (the sentences' memos compare them)
@@ -493,18 +502,34 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       if (!tail.holds(format, verdict, side, 0, 0, 0)) tail.keep(format, verdict, side, 0, 0, 0, ` more of their squared norm flushes in ${format}${side} (${verdictWord(verdict)}).`);
       return "If each worker divides the gradients of " + gradientOf(site) + middle.text + sharePercent(value) + tail.text;
     }
-    case GRADIENT_ACCUMULATION_ERROR:
-      return `${upper(backwardSum(site))} accumulates ${Math.max(1, site.terms)} terms in ${format}: relative rounding error about √n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`;
-    case GRADIENT_ACCUMULATION_OVERFLOW:
-      return (
-        `The partial sums of ${backwardSum(site)} reach the ${format} overflow threshold${context.lossScale === 1 ? "" : " after the loss scale"} with probability ` +
-        `${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`
-      );
+    case GRADIENT_ACCUMULATION_ERROR: {
+      const terms = Math.max(1, site.terms);
+      const tail = GRADIENT_ACCUMULATION_ERROR_TAIL;
+      if (!tail.holds(format, verdict, "", terms, value, 0)) {
+        tail.keep(format, verdict, "", terms, value, 0, ` accumulates ${terms} terms in ${format}: relative rounding error about √n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`);
+      }
+      return "The sum making " + madeBySum(site) + tail.text;
+    }
+    case GRADIENT_ACCUMULATION_OVERFLOW: {
+      const unscaled = context.lossScale === 1 ? 1 : 0;
+      const tail = GRADIENT_ACCUMULATION_OVERFLOW_TAIL;
+      if (!tail.holds(format, verdict, side, value, unscaled, 0)) {
+        tail.keep(format, verdict, side, value, unscaled, 0,
+          ` reach the ${format} overflow threshold${unscaled === 1 ? "" : " after the loss scale"} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`);
+      }
+      return "The partial sums of the sum making " + madeBySum(site) + tail.text;
+    }
     case GRADIENT_ACCUMULATION_FLUSH: {
-      const said =
-        `${upper(backwardSum(site))} adds terms of rms ${plainNumber(draft.extra)}${context.lossScale === 1 ? "" : " after the loss scale"} in ${format}: ` +
-        `${sharePercent(value)} of their squared norm lies below its flush bound ${plainNumber(context.accumulate.flushBound)} and is lost${side} (${verdictWord(verdict)})`;
-      return verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`), or a larger loss scale.`;
+      const unscaled = context.lossScale === 1 ? 1 : 0;
+      const flushBound = context.accumulate.flushBound;
+      const tail = GRADIENT_ACCUMULATION_FLUSH_TAIL;
+      if (!tail.holds(format, verdict, side, value, unscaled, flushBound)) {
+        const said =
+          `${unscaled === 1 ? "" : " after the loss scale"} in ${format}: ` +
+          `${sharePercent(value)} of their squared norm lies below its flush bound ${plainNumber(flushBound)} and is lost${side} (${verdictWord(verdict)})`;
+        tail.keep(format, verdict, side, value, unscaled, flushBound, verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`), or a larger loss scale.`);
+      }
+      return "The sum making " + madeBySum(site) + " adds terms of rms " + plainNumber(draft.extra) + tail.text;
     }
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
@@ -549,19 +574,19 @@ const GRADIENT_SUM_ERROR_HEAD = new Words();
 const GRADIENT_SUM_ERROR_TAIL = new Words();
 const GRADIENT_SUM_FLUSH_MIDDLE = new Words();
 const GRADIENT_SUM_FLUSH_TAIL = new Words();
+const GRADIENT_ACCUMULATION_ERROR_TAIL = new Words();
+const GRADIENT_ACCUMULATION_OVERFLOW_TAIL = new Words();
+const GRADIENT_ACCUMULATION_FLUSH_TAIL = new Words();
 
 // a layer's weight and bias have a gradient-sum site each, which the layer's name alone would not tell apart
 function gradientOf(site: HazardSite): string {
   return site.tensor ?? site.layer;
 }
 
-// what a sum of the backward pass makes, in words: a named gradient, or the gradient at its layer's input
-function backwardSum(site: HazardSite): string {
-  return `the sum making ${site.tensor ?? `the gradient at ${site.layer}'s input`}`;
-}
-
-function upper(words: string): string {
-  return words.charAt(0).toUpperCase() + words.slice(1);
+// what a sum of the backward pass makes, in words (after "the sum making"): a named gradient, or the gradient at its
+// layer's input
+function madeBySum(site: HazardSite): string {
+  return site.tensor ?? `the gradient at ${site.layer}'s input`;
 }
 
 // A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), written into `slot`, one of the working

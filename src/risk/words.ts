@@ -223,7 +223,9 @@ export function flat(text: string): string {
  * The words of a sentence that do not name its subject, kept for the next sentence of the same wording: the sites and
  * tensors of a network follow each other kind by kind, and most of them share these words (the same format, verdict,
  * side and often number), so their sentences are the subject's name between strings made once (fewer pieces to make
- * and flatten). Keyed by everything the words are made from, compared exactly (a NaN key never holds).
+ * and flatten). Keyed by everything the words are made from, compared exactly (a NaN key never holds). The last two
+ * kept are held: a network's layers often alternate two kinds of one wording (a dense layer's weight-gradient sum over
+ * the batch, then its input-gradient sum over its width), which one would make anew each time.
  */
 export class Words {
   private a = "";
@@ -232,21 +234,64 @@ export class Words {
   private x = Number.NaN;
   private y = Number.NaN;
   private z = Number.NaN;
-  /** one more number some words depend on, compared by the caller */
+  /** one more number some words depend on, compared by the caller (that of the words `text` holds) */
   extra = Number.NaN;
   text = "";
+  // the words kept before, moved back in front when they hold again
+  private a2 = "";
+  private b2 = "";
+  private c2 = "";
+  private x2 = Number.NaN;
+  private y2 = Number.NaN;
+  private z2 = Number.NaN;
+  private extra2 = Number.NaN;
+  private text2 = "";
 
+  /** Whether the words made from these keys are kept; `text` (and `extra`) are then theirs. */
   holds(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
-    return this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z;
+    if (this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z) return true;
+    if (!(this.a2 === a && this.b2 === b && this.c2 === c && this.x2 === x && this.y2 === y && this.z2 === z)) return false;
+    this.swap();
+    return true;
   }
 
   keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    this.swap();
     this.a = a;
     this.b = b;
     this.c = c;
     this.x = x;
     this.y = y;
     this.z = z;
+    this.extra = Number.NaN;
     this.text = flat(text);
+  }
+
+  // the kept words and the ones before them change places
+  private swap(): void {
+    const a = this.a;
+    const b = this.b;
+    const c = this.c;
+    const x = this.x;
+    const y = this.y;
+    const z = this.z;
+    const extra = this.extra;
+    const text = this.text;
+    this.a = this.a2;
+    this.b = this.b2;
+    this.c = this.c2;
+    this.x = this.x2;
+    this.y = this.y2;
+    this.z = this.z2;
+    this.extra = this.extra2;
+    this.text = this.text2;
+    this.a2 = a;
+    this.b2 = b;
+    this.c2 = c;
+    this.x2 = x;
+    this.y2 = y;
+    this.z2 = z;
+    this.extra2 = extra;
+    this.text2 = text;
   }
 }

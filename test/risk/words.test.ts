@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { binades, distinctNumbers, limitNumber, numberInDigits, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare } from "../../src/risk/words.js";
+import { binades, distinctNumbers, limitNumber, numberInDigits, percent, plainNumber, probabilityWords, scaleWords, sharePercent, tinyShare, Words } from "../../src/risk/words.js";
 
 // The wording as first written, straight from ECMA-262's Number.prototype.toPrecision and toExponential
 // (§21.1.3.5, §21.1.3.2): the fast digit arithmetic of plainNumber must give the same strings.
@@ -141,5 +141,42 @@ describe("limitNumber", () => {
     expect(limitNumber(464)).toBe("464");
     expect(limitNumber(15.998046875)).toBe(plainNumber(15.998046875));
     expect(limitNumber(3.3961775292304601e38)).toBe("3.4e38");
+  });
+});
+
+describe("Words", () => {
+  // the words made for each key directly (ECMA-262 template literals): what the memo must give back for that key
+  const made = (format: string, terms: number, extra: number): string => ` accumulates ${terms} terms in ${format} (${extra})`;
+
+  it("gives back the words of the keys asked, whichever of the keys kept in any order (random sequences of three keys)", () => {
+    fc.assert(
+      fc.property(fc.array(fc.tuple(fc.constantFrom("binary16", "binary32"), fc.constantFrom(32, 256, 1024), fc.constantFrom(0.01, 0.05)), { maxLength: 40 }), (asks) => {
+        const words = new Words();
+        for (const [format, terms, extra] of asks) {
+          if (!words.holds(format, "", "", terms, 0, 0) || words.extra !== extra) {
+            words.keep(format, "", "", terms, 0, 0, made(format, terms, extra));
+            words.extra = extra;
+          }
+          expect(words.text).toBe(made(format, terms, extra));
+          expect(words.extra).toBe(extra);
+        }
+      }),
+    );
+  });
+
+  it("keeps two kinds that alternate without making them anew, and never holds a NaN key", () => {
+    const words = new Words();
+    let kept = 0;
+    for (let i = 0; i < 10; i++) {
+      const terms = i % 2 === 0 ? 32 : 256;
+      if (!words.holds("binary32", "", "", terms, 0, 0)) {
+        words.keep("binary32", "", "", terms, 0, 0, made("binary32", terms, 0));
+        kept++;
+      }
+      expect(words.text).toBe(made("binary32", terms, 0));
+    }
+    expect(kept).toBe(2);
+    words.keep("binary32", "", "", Number.NaN, 0, 0, "nan");
+    expect(words.holds("binary32", "", "", Number.NaN, 0, 0)).toBe(false);
   });
 });
