@@ -474,9 +474,13 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       if (!head.holds("", "", "", terms, 0, 0)) head.keep("", "", "", terms, 0, 0, `The sum of ${terms} gradient contributions of `);
       const tail = GRADIENT_SUM_OVERFLOW_TAIL;
       const lossScale = context.lossScale;
-      if (!tail.holds(format, verdict, side, value, lossScale, 0)) {
-        tail.keep(format, verdict, side, value, lossScale, 0,
-          `${lossScale === 1 ? "" : " after the loss scale"}) overflows ${format} with probability ${probabilityWords(value)} per step${side} (${verdictWord(verdict)}).`);
+      // keyed by the probability as written: most sums that fail pass the limit with a probability of about 1, each
+      // a different double that reads the same
+      const probability = probabilityWords(value);
+      const sideIndex = side === "" ? 0 : side === AT_START ? 1 : 2;
+      if (!tail.holds(format, verdict, probability, sideIndex, lossScale, 0)) {
+        tail.keep(format, verdict, probability, sideIndex, lossScale, 0,
+          `${lossScale === 1 ? "" : " after the loss scale"}) overflows ${format} with probability ${probability} per step${side} (${verdictWord(verdict)}).`);
       }
       return head.text + gradientOf(site) + " (rms " + plainNumber(draft.extra) + tail.text;
     }

@@ -37,14 +37,16 @@ export function overflowRiskFinding(
 // The words after the subject (" overflows binary16 with probability 1 per step at the end of the horizon (limit
 // 0.01)."), kept per grade and moment (Words): a check's overflow findings alternate between the at-risk and the failing
 // limit and between the ends of the horizon, and most of them in one format report the same probability (1), so their
-// sentences are the subject and one string made once
+// sentences are the subject and one string made once. Keyed by the probability as written: the probabilities of
+// tensors that fail are doubles near 1, most of them different, which read the same
 const AFTER_SUBJECT = [new Words(), new Words(), new Words(), new Words()];
 
 function afterSubject(limits: RangeLimits, severity: Exclude<Verdict, "fits">, value: number, threshold: number, at: "start" | "end"): string {
   const words = AFTER_SUBJECT[(severity === "fails" ? 2 : 0) + (at === "start" ? 0 : 1)] as Words;
   const verb = limits.saturates ? " saturates " : " overflows ";
-  if (!words.holds(limits.format, verb, at, value, threshold, 0)) {
-    words.keep(limits.format, verb, at, value, threshold, 0, `${verb}${limits.format} with probability ${plainNumber(value)} per step ${when(at)} (limit ${plainNumber(threshold)}).`);
+  const probability = plainNumber(value);
+  if (!words.holds(limits.format, verb, probability, at === "start" ? 0 : 1, threshold, 0)) {
+    words.keep(limits.format, verb, probability, at === "start" ? 0 : 1, threshold, 0, `${verb}${limits.format} with probability ${probability} per step ${when(at)} (limit ${plainNumber(threshold)}).`);
   }
   return words.text;
 }
