@@ -36,6 +36,7 @@ import { PredictionRangeError } from "../magnitude/range.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { splitList } from "./lists.js";
+import { derivativeMixture, mixtureQuantile } from "../numeric/derivative-mixture.js";
 
 interface SimulateFlags {
   steps: string;
@@ -655,6 +656,12 @@ function predictedBand(p: MagnitudeProfile): [number, number] {
       const s = p.elementLog2Spread ?? 0;
       const m = Math.log2(p.rms) - s * s * Math.LN2;
       return [2 ** (m - 2.3263 * s), Math.min(2 ** (m + 2.3263 * s), p.bound ?? Infinity)];
+    }
+    case "gaussian-mixture": {
+      const mixture = p.mixture;
+      if (mixture === undefined) return [0.01253 * p.rms, 2.5758 * p.rms];
+      const law = derivativeMixture(mixture.activation, mixture.inputVariance);
+      return [mixtureQuantile(law, 0.01) * p.rms, mixtureQuantile(law, 0.99) * p.rms];
     }
   }
 }

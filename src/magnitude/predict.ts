@@ -772,12 +772,21 @@ function assumptions(spec: NetworkSpec): string[] {
     "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];
-  const crossing = zeroCrossingActivations(spec);
+  const mixed = zeroCrossingActivations(spec, "activation");
+  if (mixed.length > 0) {
+    // δ·φ'(x) given x is N(0, s²φ'(x)²): a Gaussian scale mixture over |φ'(x)| (gradient independence, Schoenholz et al.
+    // 2017; src/numeric/derivative-mixture.ts)
+    list.push(
+      `Gradients at the input of ${mixed.join(" and ")} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
+        "(a scale mixture): the derivative crosses zero, so they hold more values near zero than a Gaussian of the same rms.",
+    );
+  }
+  const crossing = zeroCrossingActivations(spec, "gated-feed-forward");
   if (crossing.length > 0) {
     // GELU'(x) = Φ(x) + xφ(x) vanishes near x = −0.75 and SiLU'(x) = σ(x)(1 + x(1 − σ(x))) near x = −1.28 (from their
-    // definitions, Hendrycks & Gimpel 2016; Elfwing et al. 2018), so δ·φ'(x) is a Gaussian mixture with mass near zero
+    // definitions, Hendrycks & Gimpel 2016; Elfwing et al. 2018), so δ·u·φ'(g) is a Gaussian mixture with mass near zero
     list.push(
-      `Gradients behind ${crossing.join(" and ")} are taken as Gaussian elements, but the derivative crosses zero, so they hold more ` +
+      `Gradients behind the ${crossing.join(" and ")} gates of gated feed-forward layers are taken as Gaussian elements, but the derivative crosses zero, so they hold more ` +
         "values near zero than a Gaussian of the same rms: their flushed and subnormal shares can be underestimated by a decade or more " +
         "(their rms and overflow are not affected); confirm flushing behind these activations with a short run.",
     );
@@ -801,13 +810,13 @@ function assumptions(spec: NetworkSpec): string[] {
   return list;
 }
 
-/** The activations of the spec (layers, blocks used, gated feed-forward gates) whose derivative crosses zero, in a fixed order. */
-function zeroCrossingActivations(spec: NetworkSpec): string[] {
+/** The activations of the spec (activation layers, or gated feed-forward gates; in blocks used too) whose derivative crosses zero, in a fixed order. */
+function zeroCrossingActivations(spec: NetworkSpec, family: "activation" | "gated-feed-forward"): string[] {
   const found = new Set<string>();
   const seen = new Set<string>();
   const walk = (layers: readonly LayerSpec[]): void => {
     for (const layer of layers) {
-      if (layer.family === "activation" || layer.family === "gated-feed-forward") {
+      if (layer.family === family && (layer.family === "activation" || layer.family === "gated-feed-forward")) {
         if (layer.activation === "gelu" || layer.activation === "silu") found.add(layer.activation);
       } else if (layer.family === "residual") walk(layer.branch);
       else if (layer.family === "repeat") walk(layer.layers);

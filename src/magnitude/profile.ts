@@ -3,7 +3,9 @@
  * finite-width spread of that rms, and the expected largest element from the element shape's tail and the count.
  */
 import { maxOfNormals } from "../ops/pool/analytic.js";
-import type { OpElementShape, TailKind } from "../ops/types.js";
+import type { OpElementShape, OpMixture, TailKind } from "../ops/types.js";
+import { derivativeMixture } from "../numeric/derivative-mixture.js";
+import { erfc } from "../numeric/normal.js";
 import type { MagnitudeProfile } from "./types.js";
 
 /** The moments a profile is made from (a forward Signal or a backward Gradient). */
@@ -18,6 +20,7 @@ export interface Moments {
   /** cross-sample second moment E[x_n·x_m] (a Signal's or Gradient's `shared`) */
   shared?: number;
   positionCorrelation?: number;
+  mixture?: OpMixture;
 }
 
 const EULER_GAMMA = 0.5772156649015329;
@@ -106,11 +109,45 @@ function gaussianMaxOf(n: number): number {
   return max;
 }
 
+/**
+ * The expected largest |x| of n elements of a Gaussian scale mixture of rms 1, taken where the mixture's tail
+ * Σ wᵢ·P(|Z| > m/cᵢ) equals a Gaussian's at its own expected largest element (the Gaussian's rule for one component),
+ * by bisection: the tail falls as m grows, and at m = g·max cᵢ it is at most the Gaussian's.
+ */
+function mixtureMax(mixture: OpMixture, n: number): number {
+  const { weights, scales } = derivativeMixture(mixture.activation, mixture.inputVariance);
+  const g = gaussianMaxOf(n);
+  const target = erfc(g / Math.SQRT2);
+  let widest = 0;
+  for (let i = 0; i < scales.length; i++) widest = Math.max(widest, scales[i] as number);
+  let lo = 0;
+  let hi = g * widest;
+  for (let k = 0; k < 60 && hi - lo > 1e-12 * hi; k++) {
+    const m = 0.5 * (lo + hi);
+    let tail = 0;
+    for (let i = 0; i < weights.length; i++) tail += (weights[i] as number) * erfc(m / ((scales[i] as number) * Math.SQRT2));
+    if (tail > target) lo = m;
+    else hi = m;
+  }
+  return 0.5 * (lo + hi);
+}
+
 /** Expected largest element magnitude of n nonzero elements (the fields of the moments it reads, passed one by one). */
-function maxElementOf(shape: OpElementShape, tail: TailKind | undefined, elementLog2Spread: number | undefined, bound: number | undefined, rms: number, n: number): number {
+function maxElementOf(
+  shape: OpElementShape,
+  tail: TailKind | undefined,
+  elementLog2Spread: number | undefined,
+  bound: number | undefined,
+  rms: number,
+  n: number,
+  mixture: OpMixture | undefined,
+): number {
   if (!(rms > 0) || n < 1) return 0;
   let max: number;
   switch (shape) {
+    case "gaussian-mixture":
+      max = rms * (mixture === undefined ? gaussianMaxOf(n) : mixtureMax(mixture, n));
+      break;
     case "gaussian":
     case "half-gaussian":
       max = rms * (tail === "product" ? expectedMaxAbsProduct(n) : gaussianMaxOf(n));
@@ -141,7 +178,7 @@ function maxElementOf(shape: OpElementShape, tail: TailKind | undefined, element
  */
 export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   // each field is read once: the moments come in many object shapes, so every read is a slow lookup
-  return profileFrom(m.q, m.zeroFraction, m.shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements);
+  return profileFrom(m.q, m.zeroFraction, m.shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, m.mixture);
 }
 
 /**
@@ -155,7 +192,7 @@ export function plainProfile(q: number, zeroFraction: number, shape: OpElementSh
 function profileFrom(
   q: number,
   givenZeroFraction: number,
-  shape: OpElementShape,
+  givenShape: OpElementShape,
   givenLogVar: number,
   bound: number | undefined,
   givenSpread: number | undefined,
@@ -163,7 +200,10 @@ function profileFrom(
   shared: number | undefined,
   given: number | undefined,
   elements: number,
+  mixture?: OpMixture,
 ): MagnitudeProfile {
+  // a mixture shape without its mixture is the Gaussian it mixes
+  const shape = givenShape === "gaussian-mixture" && mixture === undefined ? "gaussian" : givenShape;
   const zeroFraction = Math.min(Math.max(givenZeroFraction, 0), 1);
   const keep = 1 - zeroFraction;
   const logVar = Math.max(givenLogVar, 0);
@@ -176,7 +216,7 @@ function profileFrom(
     if (elementLog2Spread > widest) elementLog2Spread = widest;
   }
   const log2Spread = Math.sqrt(logVar) / (2 * Math.LN2);
-  const maxElement = maxElementOf(shape, tail, elementLog2Spread, bound, rms, elements * keep);
+  const maxElement = maxElementOf(shape, tail, elementLog2Spread, bound, rms, elements * keep, mixture);
   const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
   const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
   // one literal with every key, absent ones undefined, in the order the JSON output has always had them: every
@@ -192,6 +232,7 @@ function profileFrom(
     maxElement,
     bound,
     elementLog2Spread: shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined,
+    mixture: shape === "gaussian-mixture" ? mixture : undefined,
     sampleCorrelation,
     positionCorrelation,
     coherentRms: undefined,

@@ -30,8 +30,19 @@ export type PlanSlot = "activations" | "weights" | "gradients" | "optimizerState
  * - bounded: magnitudes spread up to `bound`, never above it (softmax probabilities, sigmoid outputs)
  * - log-normal: log2|x| ~ N(m, elementLog2Spread²), with m set so the rms is `rms` (softmax probabilities and
  *   cross-entropy logit gradients over many classes, whose elements span many binades)
+ * - gaussian-mixture: x = rms·c·Z with the scale c drawn per element from `mixture` (the gradient δ·φ'(x) at a GELU or
+ *   SiLU input: Gaussian given x, scaled by |φ'(x)|, which crosses zero)
  */
-export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal";
+export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal" | "gaussian-mixture";
+
+/**
+ * The scale mixture of a "gaussian-mixture" profile: the gradient behind `activation`, whose input x ~ N(0,
+ * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts)
+ */
+export interface DerivativeMixture {
+  activation: "gelu" | "silu";
+  inputVariance: number;
+}
 
 /**
  * The predicted distribution of a tensor's element magnitudes (DESIGN.md: magnitude profile).
@@ -53,6 +64,8 @@ export interface MagnitudeProfile {
   bound?: number;
   /** for shape "log-normal": the standard deviation of log2|x| across the elements of one draw */
   elementLog2Spread?: number;
+  /** for shape "gaussian-mixture": the activation derivative whose law scales the Gaussian elements */
+  mixture?: DerivativeMixture;
   /**
    * the mean-field second moment E[x²] over all elements (zeros included), averaged over draws: the quantity the
    * propagation rules carry (Poole et al. 2016); rms² ≈ meanSquare/(1 − zeroFraction) at the mean draw

@@ -11,7 +11,13 @@ import type { GraphLayer, GraphWeight } from "../graph/types.js";
 import type { ActivationName } from "../spec/types.js";
 
 /** Same strings as ElementShape in src/magnitude/types.ts (ops may not import magnitude). */
-export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal";
+export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal" | "gaussian-mixture";
+
+/** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
+export interface OpMixture {
+  activation: "gelu" | "silu";
+  inputVariance: number;
+}
 
 /** Tail family of a tensor's elements beyond its shape, for element maxima. */
 export type TailKind = "gaussian" | "product";
@@ -127,6 +133,8 @@ export interface Gradient {
   logVar: number;
   elementLog2Spread?: number;
   bound?: number;
+  /** shape "gaussian-mixture": the activation derivative that scales the Gaussian δ */
+  mixture?: OpMixture;
   /** set by a transposed weight map: the width it produced and the κ counted, for the next activation to replace */
   fresh?: { width: number; kappa: number };
   /** as Signal.sharedLogVar: variance over draws of ln of the part the samples share, where it differs from logVar */

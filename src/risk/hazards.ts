@@ -610,6 +610,7 @@ function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: num
   slot.maxElement = profile.maxElement;
   slot.bound = bound !== undefined ? bound * factor : undefined;
   slot.elementLog2Spread = profile.elementLog2Spread;
+  slot.mixture = profile.mixture;
   slot.sampleCorrelation = profile.sampleCorrelation;
   slot.positionCorrelation = profile.positionCorrelation;
   slot.coherentRms = profile.coherentRms;
@@ -628,6 +629,7 @@ function profileCopy(profile: MagnitudeProfile, elements: number, zeroFraction: 
     maxElement: profile.maxElement,
     bound: bound !== undefined ? bound * factor : undefined,
     elementLog2Spread: profile.elementLog2Spread,
+    mixture: profile.mixture,
     sampleCorrelation: profile.sampleCorrelation,
     positionCorrelation: profile.positionCorrelation,
     coherentRms: profile.coherentRms,

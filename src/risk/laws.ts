@@ -5,6 +5,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { derivativeMixture, type ScaleMixture } from "../numeric/derivative-mixture.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -142,6 +143,66 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
+// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU or SiLU): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤
+// t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the weighted
+// sum of its components' laws; src/numeric/derivative-mixture.ts)
+function mixtureBelow(m: ScaleMixture, r: number, t: number): number {
+  const w = m.weights;
+  const c = m.scales;
+  let sum = 0;
+  for (let i = 0; i < w.length; i++) sum += (w[i] as number) * gaussianBelow(r * (c[i] as number), t);
+  return Math.min(1, sum);
+}
+function mixtureAbove(m: ScaleMixture, r: number, t: number): number {
+  const w = m.weights;
+  const c = m.scales;
+  let sum = 0;
+  for (let i = 0; i < w.length; i++) sum += (w[i] as number) * gaussianAbove(r * (c[i] as number), t);
+  return Math.min(1, sum);
+}
+function mixtureEnergyBelow(m: ScaleMixture, r: number, t: number): number {
+  const w = m.weights;
+  const c = m.scales;
+  let sum = 0;
+  for (let i = 0; i < w.length; i++) {
+    const ci = c[i] as number;
+    sum += (w[i] as number) * ci * ci * gaussianEnergyBelow(r * ci, t);
+  }
+  return Math.min(1, sum);
+}
+function mixtureLaw(m: ScaleMixture): ElementLaw {
+  return {
+    below: (r, t) => mixtureBelow(m, r, t),
+    above: (r, t) => mixtureAbove(m, r, t),
+    energyBelow: (r, t) => mixtureEnergyBelow(m, r, t),
+    kurtosis: 3 * m.fourth,
+    positiveShare: 0.5,
+  };
+}
+// the components of a profile's mixture, kept per mixture object (copies of a profile share it)
+const MIXTURES = new WeakMap<object, ScaleMixture>();
+/** The scale mixture of a "gaussian-mixture" profile, or undefined for any other profile. */
+export function mixtureOf(profile: MagnitudeProfile): ScaleMixture | undefined {
+  const given = profile.mixture;
+  if (profile.shape !== "gaussian-mixture" || given === undefined) return undefined;
+  let m = MIXTURES.get(given);
+  if (m === undefined) {
+    m = derivativeMixture(given.activation, given.inputVariance);
+    MIXTURES.set(given, m);
+  }
+  return m;
+}
+
+/**
+ * The number that tells apart two laws of one shape code: the element spread of a log-normal, the key of a scale
+ * mixture (src/numeric/derivative-mixture.ts: never reused), 0 for the others; the tables key on it beside the code.
+ */
+export function lawParameter(profile: MagnitudeProfile): number {
+  if (profile.shape === "log-normal") return profile.elementLog2Spread ?? 0;
+  const m = mixtureOf(profile);
+  return m === undefined ? 0 : m.key;
+}
+
 /**
  * The element shapes lawOverDraws tells apart, as numbers, for the draw and level tables (and the subnormal noise's
  * memo); -1 for one it does not know (the tables do not memoise it). A switch, not a search of a list per look-up.
@@ -160,6 +221,8 @@ export function shapeCode(shape: MagnitudeProfile["shape"]): number {
       return 4;
     case "log-normal":
       return 5;
+    case "gaussian-mixture":
+      return 6;
     default:
       return -1;
   }
@@ -212,6 +275,10 @@ function baseLaw(profile: MagnitudeProfile): ElementLaw {
     case "log-normal": {
       const s = profile.elementLog2Spread ?? 0;
       return s > 0 ? logNormalLaw(s) : constant;
+    }
+    case "gaussian-mixture": {
+      const m = mixtureOf(profile);
+      return m === undefined ? gaussian : mixtureLaw(m);
     }
   }
 }
@@ -337,6 +404,7 @@ const GAUSSIAN = 0;
 const UNIFORM = 1;
 const LOG_NORMAL = 2;
 const CONSTANT = 3;
+const MIXTURE = 4;
 // The current integrand's threshold, element count, positive share and element spread, the current draw's scale and
 // spread, the lattice's step and spread: slots of one typed array, not module variables (a double stored in a module
 // variable is boxed at every store: garbage on every call)
@@ -353,6 +421,12 @@ STATE[I_SHARE] = 1;
 let integrandKind = CLOSURE;
 let integrandLaw = GAUSSIAN;
 let integrandClosure: (r: number) => number = () => 0;
+// the current integrand's scale mixture (law MIXTURE; its key in STATE[I_SPREAD])
+let integrandMixture: ScaleMixture | undefined;
+// the number beside the law that the tables key on: the log-normal's element spread, the mixture's key, else 0
+function elementParameter(): number {
+  return integrandLaw === LOG_NORMAL || integrandLaw === MIXTURE ? (STATE[I_SPREAD] as number) : 0;
+}
 function lawAbove(r: number, t: number): number {
   switch (integrandLaw) {
     case GAUSSIAN:
@@ -361,6 +435,8 @@ function lawAbove(r: number, t: number): number {
       return uniformAbove(r, t);
     case LOG_NORMAL:
       return logNormalAbove((STATE[I_SPREAD] as number), r, t);
+    case MIXTURE:
+      return mixtureAbove(integrandMixture as ScaleMixture, r, t);
     default:
       return r >= t ? 1 : 0;
   }
@@ -373,6 +449,8 @@ function lawBelow(r: number, t: number): number {
       return uniformBelow(r, t);
     case LOG_NORMAL:
       return logNormalBelow((STATE[I_SPREAD] as number), r, t);
+    case MIXTURE:
+      return mixtureBelow(integrandMixture as ScaleMixture, r, t);
     default:
       return r <= t ? 1 : 0;
   }
@@ -385,6 +463,8 @@ function lawEnergyBelow(r: number, t: number): number {
       return uniformEnergyBelow(r, t);
     case LOG_NORMAL:
       return logNormalEnergyBelow((STATE[I_SPREAD] as number), r, t);
+    case MIXTURE:
+      return mixtureEnergyBelow(integrandMixture as ScaleMixture, r, t);
     default:
       return r <= t ? 1 : 0;
   }
@@ -435,6 +515,15 @@ function setLawIntegrand(profile: MagnitudeProfile, kind: number, t: number, pos
       } else {
         law = CONSTANT;
         share = 1;
+      }
+      break;
+    }
+    case "gaussian-mixture": {
+      const m = mixtureOf(profile);
+      if (m !== undefined) {
+        law = MIXTURE;
+        integrandMixture = m;
+        STATE[I_SPREAD] = m.key;
       }
       break;
     }
@@ -573,7 +662,7 @@ function drawSum(rms: number, log2Spread: number): number {
   // smooth, but carried by the draws at the rule's ends (a share far below the scale), or the Gaussian and log-normal
   // shares, smooth in the scale (narrower than the coarse steps at large spreads, within ~1e-5 under the Simpson rule
   // at step 1/8): the Simpson rule, as before, at a third of the panels' cost
-  if (COARSE_AGREED[0] === 1 || (integrandKind !== CLOSURE && (integrandLaw === GAUSSIAN || integrandLaw === LOG_NORMAL))) return ruleSum(true);
+  if (COARSE_AGREED[0] === 1 || (integrandKind !== CLOSURE && (integrandLaw === GAUSSIAN || integrandLaw === LOG_NORMAL || integrandLaw === MIXTURE))) return ruleSum(true);
   return Math.min(1, Math.max(0, stepwiseSum()));
 }
 
@@ -1398,7 +1487,7 @@ export function lawMixtureCrossing(profile: MagnitudeProfile, measure: "any-abov
   }
   // the share below a level does not depend on the element count: tensors of one spread and law share it
   const slot = decreasing || !viaRows ? -1 : belowSlot(spread, p);
-  const elementSpread = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  const elementSpread = elementParameter();
   if (slot >= 0) {
     const at = slot * 4;
     if (BELOW_KEYS[at] === integrandLaw && BELOW_KEYS[at + 1] === elementSpread && BELOW_KEYS[at + 2] === spread && BELOW_KEYS[at + 3] === p) {
@@ -1616,6 +1705,24 @@ function fitStepOf(n: number): void {
     const a = SQRT3 * (1 - half);
     FIT[1] = Math.log2(a);
     slope = (a * LN2) / SQRT3;
+  } else if (integrandLaw === MIXTURE) {
+    // the mixture's tail Σ wᵢ·erfc(a/(cᵢ√2)) falls as a grows: a by bisection on log2 a, and the slope the sum of the
+    // components' Gaussian slopes, 2φ(a/cᵢ)·(a/cᵢ)·ln 2 each
+    const m = integrandMixture as ScaleMixture;
+    let low = -64;
+    let high = 16;
+    for (let k = 0; k < 64 && high - low > 1e-12; k++) {
+      const mid = 0.5 * (low + high);
+      if (mixtureAbove(m, 1, exp2(mid)) > half) low = mid;
+      else high = mid;
+    }
+    const v = 0.5 * (low + high);
+    const a = exp2(v);
+    FIT[1] = v;
+    for (let i = 0; i < m.weights.length; i++) {
+      const y = a / (m.scales[i] as number);
+      slope += (m.weights[i] as number) * 2 * normalPdf(y) * y * LN2;
+    }
   }
   const width = (limit * normalPdf(0)) / (n * ((1 - limit / 2) / (1 - share * half)) * share * slope);
   FIT[2] = width > 0 && Number.isFinite(width) && Number.isFinite(FIT[1] as number) ? width : 0;
@@ -1659,7 +1766,7 @@ function rowSlot(countKey: number, n: number): number {
   REMAINDER_KEY[0] = integrandLaw;
   REMAINDER_KEY[1] = (STATE[I_SHARE] as number);
   REMAINDER_KEY[2] = countKey;
-  REMAINDER_KEY[3] = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  REMAINDER_KEY[3] = elementParameter();
   let slot = hashSlot(REMAINDER_KEY_WORDS, REMAINDER_SLOTS);
   for (;;) {
     const at = slot * 4;
@@ -1703,7 +1810,7 @@ function rowSlot(countKey: number, n: number): number {
 // pick the rows of the current law and count (fitStep set)
 function remainderRow(): void {
   const n = (STATE[I_COUNT] as number);
-  const elementSpread = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  const elementSpread = elementParameter();
   const state = remainderCount + remainderClears * REMAINDER_SLOTS;
   if (COUNT_KEY[0] === integrandLaw && COUNT_KEY[1] === (STATE[I_SHARE] as number) && COUNT_KEY[2] === n && COUNT_KEY[3] === elementSpread && countRows === state) return;
   // the rows this count picked before, while no row has been made or cleared since (anyRule found its slot just now)
@@ -1752,7 +1859,7 @@ function countSlot(): number {
   COUNTS_PROBE[0] = integrandLaw;
   COUNTS_PROBE[1] = STATE[I_SHARE] as number;
   COUNTS_PROBE[2] = STATE[I_COUNT] as number;
-  COUNTS_PROBE[3] = integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0;
+  COUNTS_PROBE[3] = elementParameter();
   const slot = hashSlot(COUNTS_PROBE_WORDS, COUNT_SLOTS);
   const at = 4 * slot;
   if (
@@ -1776,7 +1883,7 @@ function currentCountSlot(): number {
     COUNTS_KEY[at] === integrandLaw &&
     COUNTS_KEY[at + 1] === STATE[I_SHARE] &&
     COUNTS_KEY[at + 2] === STATE[I_COUNT] &&
-    COUNTS_KEY[at + 3] === (integrandLaw === LOG_NORMAL ? (STATE[I_SPREAD] as number) : 0)
+    COUNTS_KEY[at + 3] === (elementParameter())
   ) {
     return lastCountSlot;
   }

@@ -16,6 +16,7 @@ import {
   gaussianRowsOverDraws,
   lawMixtureCrossing,
   lawOverDraws,
+  lawParameter,
 } from "./laws.js";
 import type { RangeLimits } from "./types.js";
 
@@ -151,7 +152,8 @@ function drawIntegral(profile: MagnitudeProfile, measure: number, t: number): nu
   // without a spread the integral is one evaluation of the law, cheaper than the table's look-up
   if (shape < 0 || !(profile.log2Spread > 0)) return lawOverDraws(profile, MEASURES[measure] as (typeof MEASURES)[number], t, measure === ANY_ABOVE_POSITIVE);
   const bound = profile.bound;
-  const elementSpread = profile.elementLog2Spread;
+  // a mixture's key stands where a log-normal's element spread does (no profile has both)
+  const elementSpread = shape === 6 ? lawParameter(profile) : profile.elementLog2Spread;
   // which optional fields are present goes with the measure into the first key
   DRAW_PROBE[0] = measure + (bound === undefined ? 0 : 4) + (elementSpread === undefined ? 0 : 8);
   DRAW_PROBE[1] = shape;
@@ -253,7 +255,7 @@ export function profileStatistics(
   const bound = profile.bound;
   // the codes of the draw table; bounded is the Gaussian's law here (the bound is applied after the table)
   KEY[0] = shapeCode(profile.shape === "bounded" ? "gaussian" : profile.shape);
-  KEY[1] = profile.shape === "log-normal" ? (profile.elementLog2Spread ?? 0) : 0;
+  KEY[1] = lawParameter(profile);
   KEY[2] = n;
   KEY[3] = profile.log2Spread;
   KEY[4] = levels.maxQuantile;
@@ -356,8 +358,14 @@ export function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): bool
       a.elements === b.elements &&
       a.zeroFraction === b.zeroFraction &&
       a.bound === b.bound &&
-      a.elementLog2Spread === b.elementLog2Spread)
+      a.elementLog2Spread === b.elementLog2Spread &&
+      sameMixture(a.mixture, b.mixture))
   );
+}
+
+/** Whether two profiles' scale mixtures are one (both absent, or the same activation at the same input variance). */
+export function sameMixture(a: MagnitudeProfile["mixture"], b: MagnitudeProfile["mixture"]): boolean {
+  return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance);
 }
 
 /** A copy of the profile with its scale multiplied by a factor (a loss scale, a per-tensor scale). */

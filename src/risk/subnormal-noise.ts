@@ -7,7 +7,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
 import { normalLogSf } from "../numeric/normal.js";
-import { elementLaw, isConstantLike, isEmpty, ruleOverDraws, shapeCode } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, lawParameter, mixtureOf, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
 
@@ -76,7 +76,14 @@ export const NOISE_FLOOR = 1e-12;
  * density's factor); over draws E[r^−3] = rms^−3·e^((3·S·ln 2)²/2) (the log-normal's moment).
  */
 export function noiseBound(profile: MagnitudeProfile, limits: Pick<RangeLimits, "minNormal" | "smallest">): number {
-  const density = profile.shape === "uniform" ? 1 / Math.sqrt(3) : profile.shape === "log-normal" || profile.shape === "constant" ? NaN : Math.sqrt(2 / Math.PI);
+  // a scale mixture's density is at most Σ wᵢ/cᵢ times the Gaussian's (each component's is at most √(2/π)/(r·cᵢ))
+  const mixture = mixtureOf(profile);
+  const density =
+    profile.shape === "uniform"
+      ? 1 / Math.sqrt(3)
+      : profile.shape === "log-normal" || profile.shape === "constant"
+        ? NaN
+        : Math.sqrt(2 / Math.PI) * (mixture === undefined ? 1 : mixture.density);
   // a bound under the smallest normal puts the mass above it at the bound, inside the band: no density there
   const capped = profile.bound !== undefined && profile.bound > 0 && profile.bound < limits.minNormal;
   if (density !== density || capped) return Infinity;
@@ -151,7 +158,7 @@ function memoised(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBou
   PROBE[1] = profile.rms;
   PROBE[2] = profile.log2Spread;
   PROBE[3] = profile.bound ?? -1;
-  PROBE[4] = profile.elementLog2Spread ?? -1;
+  PROBE[4] = profile.shape === "gaussian-mixture" ? lawParameter(profile) : (profile.elementLog2Spread ?? -1);
   PROBE[5] = limits.flushBound;
   PROBE[6] = limits.minNormal;
   PROBE[7] = limits.smallest;
@@ -203,6 +210,7 @@ function tilted(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound
     log2Spread: spread,
     bound: profile.bound,
     elementLog2Spread: profile.elementLog2Spread,
+    mixture: profile.mixture,
   };
   const mass = fractionBelow(moved, limits.minNormal - delta / 2) - fractionBelow(moved, limits.flushBound);
   return Math.min(1, Math.max(0, ((delta * delta) / 12 / (profile.rms * profile.rms)) * Math.exp((c * c) / 2) * mass));

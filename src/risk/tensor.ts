@@ -134,6 +134,7 @@ export function riskProfile(profile: MagnitudeProfile, factor = 1): MagnitudePro
     log2Spread: profile.log2Spread,
     bound: bound === undefined ? undefined : bound * factor,
     elementLog2Spread: profile.elementLog2Spread,
+    mixture: profile.mixture,
   };
 }
 

@@ -95,6 +95,7 @@ function profileBetween(start: MagnitudeProfile, end: MagnitudeProfile, progress
     log2Spread: spreadBetween(start.log2Spread, end.log2Spread, progress),
     bound: start.bound,
     elementLog2Spread: start.elementLog2Spread,
+    mixture: start.mixture,
   };
 }
 

@@ -121,6 +121,7 @@ export function lawOf(profile: MagnitudeProfile, zeroFraction = 0): MagnitudePro
   };
   if (profile.bound !== undefined) law.bound = profile.bound;
   if (profile.elementLog2Spread !== undefined) law.elementLog2Spread = profile.elementLog2Spread;
+  if (profile.mixture !== undefined) law.mixture = profile.mixture;
   return law;
 }
 
@@ -135,6 +136,7 @@ export function sameLaw(a: MagnitudeProfile, b: MagnitudeProfile): boolean {
     a.shape === b.shape &&
     a.bound === b.bound &&
     a.elementLog2Spread === b.elementLog2Spread &&
+    a.mixture === b.mixture &&
     nonzeroElements(a) > 0 === nonzeroElements(b) > 0
   );
 }
@@ -168,6 +170,7 @@ function isLawOf(law: MagnitudeProfile, profile: MagnitudeProfile, zeroFraction:
     law.zeroFraction === zeroFraction &&
     law.bound === profile.bound &&
     law.elementLog2Spread === profile.elementLog2Spread &&
+    law.mixture === profile.mixture &&
     law.elements === (nonzeroElements(profile) > 0 ? 1 : 0)
   );
 }

@@ -7,6 +7,7 @@ import { getFormat, type Format } from "../formats/index.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { erf, normalCdf } from "../ops/activation/moments.js";
 import { hasFiniteMagnitudes } from "./stats.js";
+import { derivativeMixture, mixtureShareBelow } from "../numeric/derivative-mixture.js";
 import type { MeasuredTensor, SimulationResult } from "./types.js";
 
 /**
@@ -135,6 +136,11 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
       if (!(s > 0)) return rms <= t ? 1 : 0;
       const m = Math.log2(rms) - s * s * Math.LN2;
       return normalCdf((Math.log2(t) - m) / s);
+    }
+    case "gaussian-mixture": {
+      const mixture = profile.mixture;
+      if (mixture === undefined) return erf(t / (rms * Math.SQRT2));
+      return mixtureShareBelow(derivativeMixture(mixture.activation, mixture.inputVariance), t / rms);
     }
   }
 }

@@ -5,6 +5,7 @@
  * by quadrature (src/numeric/softmax.ts), ≈ e^q/n² while e^q ≪ n and → 1/n as the rows concentrate.
  */
 import { featureWidth, positionCount, sampleElements } from "../../graph/shape.js";
+import { isMixtureActivation } from "../../numeric/derivative-mixture.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
@@ -430,6 +431,15 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     reluGated: undefined,
     curvature: undefined,
   };
+  // δ·φ'(x) with a Gaussian δ independent of x ~ N(0, q) is a Gaussian scale mixture over |φ'(x)| (gradient
+  // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero, so it holds far more values near zero than a
+  // Gaussian of its rms (src/numeric/derivative-mixture.ts). Zeros in the input or a pool's or batch norm's gate change
+  // the law of φ': left Gaussian there
+  const input = stash.input;
+  if (isMixtureActivation(name) && output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.q > 0) {
+    gradient.shape = "gaussian-mixture";
+    gradient.mixture = { activation: name, inputVariance: input.q };
+  }
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
   if (output.coupling !== undefined) gradient.coupling = output.coupling;
   // φ' gates two samples' gradients alike where their pre-activations agree: the cosine scales by E[φ'(u)φ'(v)]/E[φ'²]
