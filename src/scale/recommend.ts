@@ -353,13 +353,14 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   }
 }
 
-// The flushed share of a Gaussian or half-Gaussian law without a cap, at any spread of its scale, grows at most
-// eightfold per binade the threshold doubles (the magnitudes' density does not rise away from 0: src/scale/window.ts
-// flushedEnergyGrowth); 9 = 8·(1 + 1/8) leaves room far above the integrals' own error (tables within 1.1e-4 relative,
-// src/risk/laws.ts).
+// The flushed share of a Gaussian or half-Gaussian law without a cap, or of a scale mixture of Gaussians, at any spread
+// of its scale, grows at most eightfold per binade the threshold doubles (the magnitudes' density does not rise away
+// from 0: src/scale/window.ts flushedEnergyGrowth); 9 = 8·(1 + 1/8) leaves room far above the integrals' own error
+// (tables within 1.1e-4 relative, src/risk/laws.ts).
 const FLUSH_GROWTH = 9;
 function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
-  return (profile.shape === "gaussian" || profile.shape === "half-gaussian") && (profile.bound === undefined || !(profile.bound > 0));
+  const shape = profile.shape;
+  return (shape === "gaussian" || shape === "half-gaussian" || shape === "gaussian-mixture") && (profile.bound === undefined || !(profile.bound > 0));
 }
 
 const PAIR = new Float64Array(2);

@@ -3,6 +3,7 @@ import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { erfc as preciseErfc, normalPdf } from "../../src/numeric/normal.js";
 import { lawMixtureCrossing, lawOverDraws, lawOverDrawsBounds, stepLawMoments } from "../../src/risk/laws.js";
+import { derivativeMixture } from "../../src/numeric/derivative-mixture.js";
 
 // The any-above draw sum by its definition: E_z[anyOf(share·above(rms·2^(spread·z), t), n)], z ~ N(0, 1) (the
 // probability that at least one of n independent elements passes t, averaged over the log-normal draws of the scale),
@@ -11,8 +12,10 @@ import { lawMixtureCrossing, lawOverDraws, lawOverDrawsBounds, stepLawMoments } 
 // uniform on ±√3·r; log-normal with log2|x| ~ N(log2 r − s²·ln 2, s²); constant magnitudes), 1 − (1 − q)^n by
 // expm1/log1p, and the integral over z by the trapezoid rule at step 1/1024 on [−10, 10] (the mass beyond is
 // 1.5e-23, A&S 26.2.29). The uniform and constant laws are 0 below a kink z_k; there the integral runs from the kink
-// over w = z − z_k = e^τ (τ at step 1/256 from −45), which resolves a rise however steep right at the kink.
-type Law = "gaussian" | "uniform" | "log-normal" | "constant";
+// over w = z − z_k = e^τ (τ at step 1/256 from −45), which resolves a rise however steep right at the kink. The scale
+// mixture of a gradient behind GELU (q = 2) is its components' Gaussian tails, Σ wᵢ·erfc(a/(cᵢ√2)).
+type Law = "gaussian" | "uniform" | "log-normal" | "constant" | "mixture";
+const MIXTURE = derivativeMixture("gelu", 2);
 const LN2 = Math.LN2;
 function tail(law: Law, ratio: number, elementSpread: number): number {
   // P(|x| ≥ t) at r = 1, t = ratio
@@ -27,6 +30,11 @@ function tail(law: Law, ratio: number, elementSpread: number): number {
     }
     case "constant":
       return ratio <= 1 ? 1 : 0;
+    case "mixture": {
+      let sum = 0;
+      for (let i = 0; i < MIXTURE.weights.length; i++) sum += (MIXTURE.weights[i] as number) * preciseErfc(ratio / ((MIXTURE.scales[i] as number) * Math.SQRT2));
+      return sum;
+    }
   }
 }
 function anyOfReference(q: number, n: number): number {
@@ -85,6 +93,7 @@ const CASES: Case[] = [
 function profileOf(c: Case, n: number, spread: number, rms: number): MagnitudeProfile {
   const profile: MagnitudeProfile = { elements: 2 * n, zeroFraction: 0.5, shape: c.shape, rms, log2Spread: spread };
   if (c.shape === "log-normal") profile.elementLog2Spread = c.elementSpread;
+  if (c.shape === "gaussian-mixture") profile.mixture = { activation: "gelu", inputVariance: 2 };
   // far above every threshold of the sweep: the law below it is the Gaussian's
   if (c.shape === "bounded") profile.bound = rms * 2 ** 40;
   return profile;
@@ -116,6 +125,28 @@ describe("any-above draw sums", () => {
     if (worst >= 1e-6) console.log(JSON.stringify(worstCase));
     expect(worst).toBeLessThan(1e-6);
   });
+
+  it("stay within 1e-6 of the definition's integral for the scale mixture of a gradient behind GELU", () => {
+    const c: Case = { law: "mixture", shape: "gaussian-mixture", positiveOnly: false, share: 1, elementSpread: 0 };
+    let worst = 0;
+    let worstCase: unknown = null;
+    for (const n of [97.5, 3.3e6]) {
+      for (const spread of [0.05, 0.4, 1.3]) {
+        for (const x of [0, 2.4, 5, 8]) {
+          const expected = reference(c.law, c.share, n, spread, x, c.elementSpread);
+          const rms = 0.37;
+          const actual = lawOverDraws(profileOf(c, n, spread, rms), "any-above", rms * 2 ** x, c.positiveOnly);
+          const m = expected > 0 ? miss(actual, expected) : Math.abs(actual) / 1e-6;
+          if (m > worst) {
+            worst = m;
+            worstCase = { n, spread, x, expected, actual };
+          }
+        }
+      }
+    }
+    if (worst >= 1e-6) console.log(JSON.stringify(worstCase));
+    expect(worst).toBeLessThan(1e-6);
+  }, 300_000);
 
   // The level search solves the same sums: the probability at the returned level is p (the consistency the predicted
   // max needs; its accuracy then is the sums' own, above). The search itself (viaRows false): the Gaussian laws' table

@@ -8,13 +8,15 @@ import { energyBelowBounds, energyBelowUpper, probabilityAnyAboveBounds, probabi
 import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
 import { lossScaleWindow } from "../../src/scale/window.js";
 
-const SHAPES: { shape: ElementShape; bound?: number; elementLog2Spread?: number }[] = [
+const SHAPES: { shape: ElementShape; bound?: number; elementLog2Spread?: number; mixture?: MagnitudeProfile["mixture"] }[] = [
   { shape: "gaussian" },
   { shape: "half-gaussian" },
   { shape: "uniform" },
   { shape: "constant" },
   { shape: "bounded", bound: 4 },
   { shape: "log-normal", elementLog2Spread: 1.5 },
+  // the gradient behind a SiLU: a scale mixture of Gaussians, whose tail is the weighted sum of theirs
+  { shape: "gaussian-mixture", mixture: { activation: "silu", inputVariance: 1.5 } },
 ];
 
 function profiles(): MagnitudeProfile[] {
