@@ -21,12 +21,15 @@ export function isMixtureActivation(name: string): name is MixtureActivation {
  * A Gaussian scale mixture with the rms 1: component i holds the share `weights[i]` of the elements, Gaussian with the
  * rms `scales[i]`, so Σ wᵢ·cᵢ² = 1. `key` is a number no other mixture made in this process has (ids are never
  * reused), for the risk module's tables; `density` is Σ wᵢ/cᵢ (the density at 0 over a Gaussian's) and `fourth`
- * Σ wᵢ·cᵢ⁴ (E[x⁴] = 3·fourth).
+ * Σ wᵢ·cᵢ⁴ (E[x⁴] = 3·fourth). The scales fall with i; `restWeight[i]` is Σ_{j ≥ i} wⱼ and `restEnergy[i]` Σ_{j ≥ i} wⱼcⱼ²
+ * (the share and the energy of the components from i on, which a threshold far above them holds whole).
  */
 export interface ScaleMixture {
   readonly key: number;
   readonly weights: Float64Array;
   readonly scales: Float64Array;
+  readonly restWeight: Float64Array;
+  readonly restEnergy: Float64Array;
   readonly density: number;
   readonly fourth: number;
 }
@@ -136,7 +139,13 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
     density += (w[i] as number) / (c[i] as number);
     fourth += (w[i] as number) * (c[i] as number) ** 4;
   }
-  return { key: nextKey++, weights: w, scales: c, density, fourth };
+  const restWeight = new Float64Array(w.length + 1);
+  const restEnergy = new Float64Array(w.length + 1);
+  for (let i = w.length - 1; i >= 0; i--) {
+    restWeight[i] = (restWeight[i + 1] as number) + (w[i] as number);
+    restEnergy[i] = (restEnergy[i + 1] as number) + (w[i] as number) * (c[i] as number) ** 2;
+  }
+  return { key: nextKey++, weights: w, scales: c, restWeight, restEnergy, density, fourth };
 }
 
 /** P(|x| ≤ a) for one element of a scale mixture of rms 1: Σ wᵢ·erf(a/(cᵢ√2)) (each component a Gaussian). */

@@ -146,27 +146,47 @@ function logNormalLaw(s: number): ElementLaw {
 // A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU or SiLU): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤
 // t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the weighted
 // sum of its components' laws; src/numeric/derivative-mixture.ts)
+// The scales fall with i, so t/(r·cᵢ) rises: past 9 a component's share below is 1 and its energy below 1 (as
+// gaussianEnergyBelow's ENERGY_ONE), past 40 its tail 0 (erfc(40/√2) is under the smallest double): the rest is taken whole.
+const MIXTURE_ALL_BELOW = 9;
+const MIXTURE_NONE_ABOVE = 40;
 function mixtureBelow(m: ScaleMixture, r: number, t: number): number {
+  if (!(t > 0)) return 0;
+  if (!(r > 0)) return 1;
   const w = m.weights;
   const c = m.scales;
   let sum = 0;
-  for (let i = 0; i < w.length; i++) sum += (w[i] as number) * gaussianBelow(r * (c[i] as number), t);
+  for (let i = 0; i < w.length; i++) {
+    const ri = r * (c[i] as number);
+    if (t >= MIXTURE_ALL_BELOW * ri) return Math.min(1, sum + (m.restWeight[i] as number));
+    sum += (w[i] as number) * gaussianBelow(ri, t);
+  }
   return Math.min(1, sum);
 }
 function mixtureAbove(m: ScaleMixture, r: number, t: number): number {
+  if (!(t > 0)) return 1;
+  if (!(r > 0)) return 0;
   const w = m.weights;
   const c = m.scales;
   let sum = 0;
-  for (let i = 0; i < w.length; i++) sum += (w[i] as number) * gaussianAbove(r * (c[i] as number), t);
+  for (let i = 0; i < w.length; i++) {
+    const ri = r * (c[i] as number);
+    if (t >= MIXTURE_NONE_ABOVE * ri) break;
+    sum += (w[i] as number) * gaussianAbove(ri, t);
+  }
   return Math.min(1, sum);
 }
 function mixtureEnergyBelow(m: ScaleMixture, r: number, t: number): number {
+  if (!(t > 0)) return 0;
+  if (!(r > 0)) return 1;
   const w = m.weights;
   const c = m.scales;
   let sum = 0;
   for (let i = 0; i < w.length; i++) {
     const ci = c[i] as number;
-    sum += (w[i] as number) * ci * ci * gaussianEnergyBelow(r * ci, t);
+    const ri = r * ci;
+    if (t >= MIXTURE_ALL_BELOW * ri) return Math.min(1, sum + (m.restEnergy[i] as number));
+    sum += (w[i] as number) * ci * ci * gaussianEnergyBelow(ri, t);
   }
   return Math.min(1, sum);
 }
