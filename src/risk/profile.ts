@@ -364,7 +364,7 @@ export function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): bool
 }
 
 /** Whether two profiles' scale mixtures are one (both absent, or the same activation at the same input variance). */
-export function sameMixture(a: MagnitudeProfile["mixture"], b: MagnitudeProfile["mixture"]): boolean {
+function sameMixture(a: MagnitudeProfile["mixture"], b: MagnitudeProfile["mixture"]): boolean {
   return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance);
 }
 

@@ -47,10 +47,11 @@ describe("riskProfile", () => {
 
   it("gives every profile one layout: the same keys in the same order, whatever fields the prediction carried", () => {
     const keys = Object.keys(riskProfile(profile({})));
-    expect(keys).toEqual(["elements", "zeroFraction", "shape", "rms", "log2Spread", "bound", "elementLog2Spread"]);
+    expect(keys).toEqual(["elements", "zeroFraction", "shape", "rms", "log2Spread", "bound", "elementLog2Spread", "mixture"]);
     const full: MagnitudeProfile = { ...profile({ shape: "bounded", bound: 3 }), meanSquare: 0.2, maxElement: 2 };
     expect(Object.keys(riskProfile(full, 4))).toEqual(keys);
     expect(Object.keys(riskProfile(profile({ shape: "log-normal", elementLog2Spread: 1.5 })))).toEqual(keys);
+    expect(Object.keys(riskProfile(profile({ shape: "gaussian-mixture", mixture: { activation: "gelu", inputVariance: 1 } })))).toEqual(keys);
   });
 });
 
