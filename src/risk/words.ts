@@ -228,70 +228,65 @@ export function flat(text: string): string {
  * the batch, then its input-gradient sum over its width), which one would make anew each time.
  */
 export class Words {
-  private a = "";
-  private b = "";
-  private c = "";
-  private x = Number.NaN;
-  private y = Number.NaN;
-  private z = Number.NaN;
+  // the words kept last, and the ones before them
+  private front = new Kept();
+  private back = new Kept();
+
+  /** the words of the keys `holds` found or `keep` was given */
+  get text(): string {
+    return this.front.text;
+  }
+
   /** one more number some words depend on, compared by the caller (that of the words `text` holds) */
-  extra = Number.NaN;
-  text = "";
-  // the words kept before, moved back in front when they hold again
-  private a2 = "";
-  private b2 = "";
-  private c2 = "";
-  private x2 = Number.NaN;
-  private y2 = Number.NaN;
-  private z2 = Number.NaN;
-  private extra2 = Number.NaN;
-  private text2 = "";
+  get extra(): number {
+    return this.front.extra;
+  }
+
+  set extra(value: number) {
+    this.front.extra = value;
+  }
 
   /** Whether the words made from these keys are kept; `text` (and `extra`) are then theirs. */
   holds(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
-    if (this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z) return true;
-    if (!(this.a2 === a && this.b2 === b && this.c2 === c && this.x2 === x && this.y2 === y && this.z2 === z)) return false;
+    if (this.front.matches(a, b, c, x, y, z)) return true;
+    if (!this.back.matches(a, b, c, x, y, z)) return false;
     this.swap();
     return true;
   }
 
   keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    // the words kept last become the ones before, and the older ones make room
     this.swap();
-    this.a = a;
-    this.b = b;
-    this.c = c;
-    this.x = x;
-    this.y = y;
-    this.z = z;
-    this.extra = Number.NaN;
-    this.text = flat(text);
+    const kept = this.front;
+    kept.a = a;
+    kept.b = b;
+    kept.c = c;
+    kept.x = x;
+    kept.y = y;
+    kept.z = z;
+    kept.extra = Number.NaN;
+    kept.text = flat(text);
   }
 
-  // the kept words and the ones before them change places
   private swap(): void {
-    const a = this.a;
-    const b = this.b;
-    const c = this.c;
-    const x = this.x;
-    const y = this.y;
-    const z = this.z;
-    const extra = this.extra;
-    const text = this.text;
-    this.a = this.a2;
-    this.b = this.b2;
-    this.c = this.c2;
-    this.x = this.x2;
-    this.y = this.y2;
-    this.z = this.z2;
-    this.extra = this.extra2;
-    this.text = this.text2;
-    this.a2 = a;
-    this.b2 = b;
-    this.c2 = c;
-    this.x2 = x;
-    this.y2 = y;
-    this.z2 = z;
-    this.extra2 = extra;
-    this.text2 = text;
+    const front = this.front;
+    this.front = this.back;
+    this.back = front;
+  }
+}
+
+/** One set of words kept by {@link Words}, with the keys they were made from. */
+class Kept {
+  a = "";
+  b = "";
+  c = "";
+  x = Number.NaN;
+  y = Number.NaN;
+  z = Number.NaN;
+  extra = Number.NaN;
+  text = "";
+
+  matches(a: string, b: string, c: string, x: number, y: number, z: number): boolean {
+    return this.a === a && this.b === b && this.c === c && this.x === x && this.y === y && this.z === z;
   }
 }
