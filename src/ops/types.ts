@@ -169,7 +169,8 @@ export interface Gradient {
    */
   windowMaximum?: number;
   /**
-   * set by max-pool's backward and kept by the positively homogeneous activations below it (ReLU, leaky ReLU): E[S²]
+   * set by max-pool's backward, or by a ReLU or leaky ReLU with no max pool above it where the loss's curvature is not
+   * carried, and kept by the positively homogeneous activations below a max pool (ReLU, leaky ReLU): E[S²]
    * of S = Σ over batch and positions of z·δ for one channel, z the tensor this gradient belongs to. Σ y·δ_y = Σ p·g
    * at the pool's output (Euler's theorem, φ(y) = y·φ'(y); the arg-max routing moves g to a pixel equal to p), and a
    * layer y = w·x below gets S·w/‖w‖² in its weight gradient: the routed pixels are where x lines up with w

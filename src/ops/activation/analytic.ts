@@ -13,7 +13,7 @@ import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
 
@@ -37,6 +37,8 @@ export interface ActivationStash {
   probabilityJacobian?: number;
   /** leaky-relu: the negative slope */
   slope?: number;
+  /** the activation's output, whose products with the gradient a rectifier sums for the layer below (Gradient.homogeneousSum) */
+  output?: Signal;
 }
 
 const SOURCE = "Gaussian expectation of φ² and φ'² (Poole et al. 2016; Schoenholz et al. 2017)";
@@ -373,6 +375,7 @@ export function pointwiseForward(
       derivativeCrossPosition: keep * keep * crossPosition.derivative + (1 - keep * keep) * d0 * d0,
       allOff,
       slope,
+      output,
     },
     ratio: input.q > 0 ? q / input.q : 0,
     rule: ctx.ledger ? forwardRule(name, qNonzero, input.q > 0 ? q / input.q : 0, input.gaussian) : "",
@@ -633,6 +636,14 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       const lost = gate.correction / ((ctx.batch - 1) * positionCount(layer.input));
       gradient.shared = (gradient.shared ?? 0) - gradient.q * lost;
       if (gradient.crossCorrelation !== undefined) gradient.crossCorrelation -= lost;
+    }
+    const name = spec.activation;
+    if ((name === "relu" || name === "leaky-relu") && gradient.homogeneousSum === undefined && output.windowMaximum === undefined && gate === undefined && output.curvature === undefined && stash.output !== undefined) {
+      // Euler's theorem, u·φ'(u) = φ(u): Σ u·δ_u = Σ φ(u)·g over batch × positions, which the linear layer below holds along
+      // its unit's own weights (as a max pool's sum); its pairs share the output's mean, E[x·φ'(w·x)] = E[φ'']·Cov(x, u) ≠ 0
+      // for a rectifier (Stein's lemma), a part the same in every sample that the pairs of input and gradient miss. Not
+      // where the loss's curvature is carried: the sum also holds its part there, which the layer below adds as its own
+      gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output);
     }
     return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },
