@@ -30,8 +30,8 @@ export type PlanSlot = "activations" | "weights" | "gradients" | "optimizerState
  * - bounded: magnitudes spread up to `bound`, never above it (softmax probabilities, sigmoid outputs)
  * - log-normal: log2|x| ~ N(m, elementLog2Spread²), with m set so the rms is `rms` (softmax probabilities and
  *   cross-entropy logit gradients over many classes, whose elements span many binades)
- * - gaussian-mixture: x = rms·c·Z with the scale c drawn per element from `mixture` (the gradient δ·φ'(x) at a GELU or
- *   SiLU input: Gaussian given x, scaled by |φ'(x)|, which crosses zero)
+ * - gaussian-mixture: x = rms·c·Z with the scale c drawn per element from `mixture` (the gradient δ·φ'(x) at the input
+ *   of a smooth activation: Gaussian given x, scaled by |φ'(x)|, which crosses zero or fades in a saturated tail)
  */
 export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal" | "gaussian-mixture";
 
@@ -40,7 +40,7 @@ export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant"
  * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts)
  */
 export interface DerivativeMixture {
-  activation: "gelu" | "silu";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus";
   inputVariance: number;
 }
 

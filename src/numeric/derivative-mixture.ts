@@ -3,18 +3,23 @@
  * of the pre-activation x ~ N(0, q) is, given x, N(0, s²·φ'(x)²), so its magnitude law is a mixture of Gaussian laws
  * over the law of |φ'(x)| (the gradient independence of Schoenholz et al. 2017, as the backward rule takes it). Where
  * φ' crosses zero (GELU near x = −0.75, SiLU near −1.28; their definitions, Hendrycks & Gimpel 2016, Elfwing et al.
- * 2018) or fades in a tail, |φ'(x)| has mass near 0 that a Gaussian of the same rms does not have.
+ * 2018) or fades in a saturated tail (tanh, sigmoid, softplus: their derivatives vanish as |x| or −x grows), |φ'(x)|
+ * has mass near 0 that a Gaussian of the same rms does not have.
  */
 import type { ActivationName } from "../spec/types.js";
 import { activationFunction } from "./activations.js";
 import { erf, normalCdf } from "./normal.js";
 
 /** The activations whose input gradient is told as a scale mixture (see {@link derivativeMixture}). */
-export type MixtureActivation = Extract<ActivationName, "gelu" | "silu">;
+export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus">;
 
-/** Whether the input gradient of this activation is told as a scale mixture. */
+/**
+ * Whether the input gradient of this activation is told as a scale mixture: the smooth activations whose derivative
+ * is not constant. Their flushed share differs from a Gaussian's of the same rms by 1.0–1.5x at q = 0.25 but 2.6–140x
+ * at q = 4 (tanh most, then softplus and sigmoid; a seeded Monte Carlo of δ·φ'(x), test/risk/derivative-mixture.test.ts)
+ */
 export function isMixtureActivation(name: string): name is MixtureActivation {
-  return name === "gelu" || name === "silu";
+  return name === "gelu" || name === "silu" || name === "tanh" || name === "sigmoid" || name === "softplus";
 }
 
 /**
@@ -39,6 +44,9 @@ export interface ScaleMixture {
 // rms normalisation below moves it by ~1% more: the mixture's flushed shares of δ·GELU'(x) and δ·SiLU'(x) lie within
 // 4% of a seeded Monte Carlo from 1e-5 to 0.5 (test/numeric/derivative-mixture.test.ts)
 const BIN = 0.5;
+// the two binades under the largest |φ'| in bins of an eighth: a tail far above the rms is carried by them
+const FINE = 1 / 8;
+const FINE_REACH = 2;
 // bins down to 2^−28 of the largest |φ'|; below it one component: mass there is about 2^−28 of the whole (|φ'| is
 // linear near a simple zero), under every share a finding reads (1e-8)
 const FLOOR = -28;
@@ -108,8 +116,11 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
     }
     return Math.min(1, Math.max(0, total));
   };
+  // the top binades finer: the largest scales carry the tail (a tanh' piled up just under its maximum 1)
   const edges = [top];
-  for (let e = Math.ceil(Math.log2(top) / BIN) * BIN - BIN; e > FLOOR + Math.log2(top); e -= BIN) edges.push(2 ** e);
+  const high = Math.log2(top);
+  for (let e = Math.ceil(high / FINE) * FINE - FINE; e > high - FINE_REACH; e -= FINE) edges.push(2 ** e);
+  for (let e = Math.ceil((high - FINE_REACH) / BIN) * BIN; e > FLOOR + high; e -= BIN) if (2 ** e < (edges[edges.length - 1] as number)) edges.push(2 ** e);
   const weights: number[] = [];
   const scales: number[] = [];
   let above = 1;

@@ -15,7 +15,7 @@ export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constan
 
 /** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
 export interface OpMixture {
-  activation: "gelu" | "silu";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus";
   inputVariance: number;
 }
 

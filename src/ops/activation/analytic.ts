@@ -435,8 +435,8 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     curvature: undefined,
   };
   // δ·φ'(x) with a Gaussian δ independent of x ~ N(0, q) is a Gaussian scale mixture over |φ'(x)| (gradient
-  // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero, so it holds far more values near zero than a
-  // Gaussian of its rms (src/numeric/derivative-mixture.ts). Zeros in the input or a pool's or batch norm's gate change
+  // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero and tanh', sigmoid' and softplus' fade in their
+  // saturated tails, so it holds more values near zero than a Gaussian of its rms (src/numeric/derivative-mixture.ts). Zeros in the input or a pool's or batch norm's gate change
   // the law of φ': left Gaussian there
   const input = stash.input;
   if (isMixtureActivation(name) && output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.q > 0) {
