@@ -168,3 +168,40 @@ describe("check against the simulation behind GELU and SiLU", () => {
     }
   });
 });
+
+// An invented tide-gauge smoother: two saturating layers whose pre-activations have variance 4 then ~2.5 (weights of
+// standard deviation 1/8 over 256 inputs), a wide output as above
+function tide(activation: string): string {
+  return `name: tide-${activation}
+input: { features: 256, scale: 1.0 }
+training:
+  batch: 256
+  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
+  optimizer: { kind: sgd, learning-rate: 0.01 }
+precision: { name: g8, activations: binary32, weights: binary32, gradients: e5m2, optimizer-states: binary32, master-weights: binary32, accumulate: binary32, scaling: none }
+layers:
+  - { type: dense, name: wide-1, width: 256, init: { kind: normal, std: 0.125 } }
+  - { type: ${activation}, name: act-1 }
+  - { type: dense, name: wide-2, width: 256, init: { kind: normal, std: 0.125 } }
+  - { type: ${activation}, name: act-2 }
+  - { type: dense, name: out, width: 128, init: glorot-normal }
+`;
+}
+
+describe("check against the simulation behind tanh, sigmoid and softplus", () => {
+  it("predicts the e5m2 flushed share at their inputs within 30% of the measured (the Gaussian law gave 0.02–0.4 of it)", () => {
+    for (const activation of ["tanh", "sigmoid", "softplus"]) {
+      const parsed = parseSpec(tide(activation), `tide-${activation}.yaml`);
+      if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+      const answer = check(parsed.spec, { lossScale: 128 });
+      const measured = runSimulation(parsed.spec, { seed: 1, draws: 3, lossScale: 128 });
+      for (const id of ["wide-1/activation-gradient", "wide-2/activation-gradient"]) {
+        const risk = answer.tensors.find((t) => t.id === id)?.risks.find((r) => r.format === "e5m2");
+        const flushed = measured.tensors.find((t) => t.id === id)?.median.counts.flushed;
+        if (risk === undefined || flushed === undefined) throw new Error(`${id} not judged or not measured`);
+        expect(risk.start.flushedFraction / flushed, `${activation} ${id}`).toBeGreaterThan(0.75);
+        expect(risk.start.flushedFraction / flushed, `${activation} ${id}`).toBeLessThan(1.3);
+      }
+    }
+  });
+});
