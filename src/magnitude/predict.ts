@@ -4,7 +4,6 @@
  * forward second moments layer by layer (src/ops/<family>/analytic.ts), the loss seed, backward second moments,
  * weight gradients as sums over batch and positions, the finite-width spread, and element maxima.
  */
-import { isMixtureActivation } from "../numeric/derivative-mixture.js";
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
@@ -778,8 +777,8 @@ function assumptions(spec: NetworkSpec): string[] {
     // δ·φ'(x) given x is N(0, s²φ'(x)²): a Gaussian scale mixture over |φ'(x)| (gradient independence, Schoenholz et al.
     // 2017; src/numeric/derivative-mixture.ts)
     list.push(
-      `Gradients at the input of ${mixed.join(", ").replace(/, ([^,]*)$/, " and $1")} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
-        "(a scale mixture): where the derivative crosses zero (GELU, SiLU) or fades in a saturated tail (tanh, sigmoid, softplus), they hold more values near zero than a Gaussian of the same rms.",
+      `Gradients at the input of ${mixed.join(" and ")} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
+        "(a scale mixture): the derivative crosses zero, so they hold more values near zero than a Gaussian of the same rms.",
     );
   }
   const crossing = zeroCrossingActivations(spec, "gated-feed-forward");
@@ -818,9 +817,7 @@ function zeroCrossingActivations(spec: NetworkSpec, family: "activation" | "gate
   const walk = (layers: readonly LayerSpec[]): void => {
     for (const layer of layers) {
       if (layer.family === family && (layer.family === "activation" || layer.family === "gated-feed-forward")) {
-        // an activation layer's input gradient is a scale mixture for every smooth activation; a gate's is warned of
-        // where its derivative crosses zero
-        if (layer.activation === "gelu" || layer.activation === "silu" || (family === "activation" && isMixtureActivation(layer.activation))) found.add(layer.activation);
+        if (layer.activation === "gelu" || layer.activation === "silu") found.add(layer.activation);
       } else if (layer.family === "residual") walk(layer.branch);
       else if (layer.family === "repeat") walk(layer.layers);
       else if (layer.family === "use" && !seen.has(layer.block)) {
@@ -832,7 +829,7 @@ function zeroCrossingActivations(spec: NetworkSpec, family: "activation" | "gate
     }
   };
   walk(spec.layers);
-  return ["gelu", "silu", "tanh", "sigmoid", "softplus"].filter((name) => found.has(name)).map((name) => (name === "gelu" ? "GELU" : name === "silu" ? "SiLU" : name));
+  return ["gelu", "silu"].filter((name) => found.has(name)).map((name) => (name === "gelu" ? "GELU" : "SiLU"));
 }
 
 /**

@@ -122,10 +122,11 @@ function mixtureMax(mixture: OpMixture, n: number): number {
   for (let i = 0; i < scales.length; i++) widest = Math.max(widest, scales[i] as number);
   let lo = 0;
   let hi = g * widest;
-  for (let k = 0; k < 60 && hi - lo > 1e-12 * hi; k++) {
+  for (let k = 0; k < 60 && hi - lo > 1e-10 * hi; k++) {
     const m = 0.5 * (lo + hi);
     let tail = 0;
-    for (let i = 0; i < weights.length; i++) tail += (weights[i] as number) * erfc(m / ((scales[i] as number) * Math.SQRT2));
+    // the scales fall along the components: past m/c = 40 the tails are under the smallest double
+    for (let i = 0; i < weights.length && m < 40 * (scales[i] as number); i++) tail += (weights[i] as number) * erfc(m / ((scales[i] as number) * Math.SQRT2));
     if (tail > target) lo = m;
     else hi = m;
   }

@@ -10,17 +10,13 @@ import type { ActivationName } from "../spec/types.js";
 import { activationFunction } from "./activations.js";
 import { erf, normalCdf } from "./normal.js";
 
-/** The activations whose input gradient is told as a scale mixture (see {@link derivativeMixture}). */
-export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus">;
-
 /**
- * Whether the input gradient of this activation is told as a scale mixture: the smooth activations whose derivative
- * is not constant. Their flushed share differs from a Gaussian's of the same rms by 1.0–1.5x at q = 0.25 but 2.6–140x
- * at q = 4 (tanh most, then softplus and sigmoid; a seeded Monte Carlo of δ·φ'(x), test/risk/derivative-mixture.test.ts)
+ * The activations whose derivative has a scale mixture here: the smooth ones, whose derivative is not constant. Their
+ * flushed share differs from a Gaussian's of the same rms by 1.0–1.5x at q = 0.25 but 2.6–140x at q = 4 (tanh most,
+ * then softplus and sigmoid; a seeded Monte Carlo of δ·φ'(x), test/risk/derivative-mixture.test.ts). The magnitude
+ * engine makes it for GELU and SiLU only (src/ops/activation/analytic.ts)
  */
-export function isMixtureActivation(name: string): name is MixtureActivation {
-  return name === "gelu" || name === "silu" || name === "tanh" || name === "sigmoid" || name === "softplus";
-}
+export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus">;
 
 /**
  * A Gaussian scale mixture with the rms 1: component i holds the share `weights[i]` of the elements, Gaussian with the
@@ -50,6 +46,8 @@ const FINE_REACH = 2;
 // bins down to 2^−28 of the largest |φ'|; below it one component: mass there is about 2^−28 of the whole (|φ'| is
 // linear near a simple zero), under every share a finding reads (1e-8)
 const FLOOR = -28;
+// mass of |φ'| below a bin's edge under which the bins stop (the findings' sentences floor shares at 1e-8)
+const MASS_FLOOR = 1e-9;
 // the grid that splits x into pieces on which φ' is monotone: ±12 standard deviations (mass beyond: 4e-33)
 const GRID = 2400;
 const REACH = 12;
@@ -86,21 +84,38 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
   const cuts = [0];
   for (let i = 1; i < GRID; i++) if (((d[i] as number) - (d[i - 1] as number)) * ((d[i + 1] as number) - (d[i] as number)) < 0) cuts.push(i);
   cuts.push(GRID);
-  // z where φ'(√q·z) = level on the monotone piece [u, v], clamped to its ends
+  // z where φ'(√q·z) = level on the monotone piece [u, v], clamped to its ends: the grid step that holds it by bisection on
+  // the grid's values, then the Illinois variant of false position inside that step (superlinear for a smooth φ'; Dowell
+  // & Jarratt 1971), to 1e-14 in z
   const crossing = (u: number, v: number, level: number): number => {
     const du = d[u] as number;
     const dv = d[v] as number;
     const rising = dv > du;
     if (rising ? level <= du : level >= du) return z[u] as number;
     if (rising ? level >= dv : level <= dv) return z[v] as number;
-    let a = z[u] as number;
-    let b = z[v] as number;
-    for (let k = 0; k < 64; k++) {
-      const m = 0.5 * (a + b);
-      if (df(root * m) < level === rising) a = m;
-      else b = m;
+    let lo = u;
+    let hi = v;
+    while (hi - lo > 1) {
+      const mid = (lo + hi) >> 1;
+      if ((d[mid] as number) < level === rising) lo = mid;
+      else hi = mid;
     }
-    return 0.5 * (a + b);
+    let a = z[lo] as number;
+    let b = z[hi] as number;
+    let fa = (d[lo] as number) - level;
+    let fb = (d[hi] as number) - level;
+    for (let k = 0; k < 60 && fb !== 0; k++) {
+      const c = fb === fa ? 0.5 * (a + b) : (a * fb - b * fa) / (fb - fa);
+      if (Math.abs(c - b) <= 1e-14) return c;
+      const fc = df(root * c) - level;
+      if (fc * fb < 0) {
+        a = b;
+        fa = fb;
+      } else fa /= 2;
+      b = c;
+      fb = fc;
+    }
+    return b;
   };
   // P(|φ'(x)| ≤ level): the masses of the pieces' sub-intervals where −level ≤ φ' ≤ level
   const massBelow = (level: number): number => {
@@ -127,11 +142,15 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
   for (let k = 1; k <= edges.length; k++) {
     const low = k < edges.length ? (edges[k] as number) : 0;
     const below = k < edges.length ? massBelow(low) : 0;
-    const w = above - below;
+    // the mass left below this bin is under every share a finding reads: it joins the bin, the last one
+    const last = below < MASS_FLOOR;
+    const w = last ? above : above - below;
     above = below;
-    if (!(w > 0)) continue;
-    weights.push(w);
-    scales.push(low > 0 ? Math.sqrt(low * (edges[k - 1] as number)) : (edges[k - 1] as number) / 2);
+    if (w > 0) {
+      weights.push(w);
+      scales.push(low > 0 ? Math.sqrt(low * (edges[k - 1] as number)) : (edges[k - 1] as number) / 2);
+    }
+    if (last) break;
   }
   let total = 0;
   let second = 0;
