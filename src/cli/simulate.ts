@@ -660,7 +660,7 @@ function predictedBand(p: MagnitudeProfile): [number, number] {
     case "gaussian-mixture": {
       const mixture = p.mixture;
       if (mixture === undefined) return [0.01253 * p.rms, 2.5758 * p.rms];
-      const law = derivativeMixture(mixture.activation, mixture.inputVariance);
+      const law = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
       return [mixtureQuantile(law, 0.01) * p.rms, mixtureQuantile(law, 0.99) * p.rms];
     }
   }

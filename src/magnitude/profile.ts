@@ -115,7 +115,7 @@ function gaussianMaxOf(n: number): number {
  * by bisection: the tail falls as m grows, and at m = g·max cᵢ it is at most the Gaussian's.
  */
 function mixtureMax(mixture: OpMixture, n: number): number {
-  const { weights, scales } = derivativeMixture(mixture.activation, mixture.inputVariance);
+  const { weights, scales } = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
   const g = gaussianMaxOf(n);
   const target = erfc(g / Math.SQRT2);
   let widest = 0;

@@ -40,8 +40,10 @@ export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant"
  * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts)
  */
 export interface DerivativeMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu";
   inputVariance: number;
+  /** leaky-relu: its negative slope (the two scales 1 and |slope|, each on half the elements) */
+  slope?: number;
 }
 
 /**

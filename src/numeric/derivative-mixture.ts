@@ -14,9 +14,10 @@ import { erf, normalCdf } from "./normal.js";
  * The activations whose derivative has a scale mixture here: the smooth ones, whose derivative is not constant. Their
  * flushed share differs from a Gaussian's of the same rms by 1.0–1.5x at q = 0.25 but 2.6–140x at q = 4 (tanh most,
  * then softplus and sigmoid; a seeded Monte Carlo of δ·φ'(x), test/risk/derivative-mixture.test.ts). The magnitude
- * engine makes it for GELU and SiLU only (src/ops/activation/analytic.ts)
+ * engine makes it for GELU and SiLU only (src/ops/activation/analytic.ts), and for a leaky ReLU, whose derivative
+ * takes two values (exactly two components)
  */
-export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus">;
+export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu">;
 
 /**
  * A Gaussian scale mixture with the rms 1: component i holds the share `weights[i]` of the elements, Gaussian with the
@@ -57,14 +58,22 @@ const REACH = 12;
  * |φ'(x)| falls in each bin (the bins' edges solved on each piece where φ' is monotone by bisection), each bin one
  * Gaussian at its geometric centre; the scales are then scaled together so that Σ wᵢcᵢ² = 1.
  */
-export function derivativeMixture(name: MixtureActivation, q: number): ScaleMixture {
-  const slot = `${name}:${q}`;
+export function derivativeMixture(name: MixtureActivation, q: number, slope?: number): ScaleMixture {
+  const slot = name === "leaky-relu" ? `${name}:${slope}` : `${name}:${q}`;
   const known = MEMO.get(slot);
   if (known !== undefined) return known;
-  const made = makeMixture(activationFunction(name).df, q);
+  const made = name === "leaky-relu" ? leakyMixture(slope ?? 0) : makeMixture(activationFunction(name).df, q);
   if (MEMO.size >= MEMO_LIMIT) MEMO.clear();
   MEMO.set(slot, made);
   return made;
+}
+/**
+ * A leaky ReLU's derivative is 1 on the positive half of a zero-mean x and the slope on the other (its definition), so
+ * δ·φ'(x) is exactly two Gaussians of scales 1 and |slope| with half the elements each, whatever q.
+ */
+function leakyMixture(slope: number): ScaleMixture {
+  const a = Math.abs(slope);
+  return a > 1 ? fromComponents([0.5, 0.5], [a, 1]) : fromComponents([0.5, 0.5], [1, a]);
 }
 const MEMO = new Map<string, ScaleMixture>();
 const MEMO_LIMIT = 4096;
@@ -152,6 +161,11 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
     }
     if (last) break;
   }
+  return fromComponents(weights, scales);
+}
+
+// the mixture of components with these weights and falling scales, normalised to total weight 1 and rms 1
+function fromComponents(weights: readonly number[], scales: readonly number[]): ScaleMixture {
   let total = 0;
   let second = 0;
   for (let i = 0; i < weights.length; i++) {

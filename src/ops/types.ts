@@ -15,8 +15,9 @@ export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constan
 
 /** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
 export interface OpMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu";
   inputVariance: number;
+  slope?: number;
 }
 
 /** Tail family of a tensor's elements beyond its shape, for element maxima. */

@@ -143,7 +143,7 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
-// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU or SiLU): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤
+// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU, SiLU or leaky ReLU): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤
 // t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the weighted
 // sum of its components' laws; src/numeric/derivative-mixture.ts)
 // The scales fall with i, so t/(r·cᵢ) rises: past 9 a component's share below is 1 and its energy below 1 (as
@@ -207,7 +207,7 @@ export function mixtureOf(profile: MagnitudeProfile): ScaleMixture | undefined {
   if (profile.shape !== "gaussian-mixture" || given === undefined) return undefined;
   let m = MIXTURES.get(given);
   if (m === undefined) {
-    m = derivativeMixture(given.activation, given.inputVariance);
+    m = derivativeMixture(given.activation, given.inputVariance, given.slope);
     MIXTURES.set(given, m);
   }
   return m;

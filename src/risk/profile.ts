@@ -365,7 +365,7 @@ export function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): bool
 
 /** Whether two profiles' scale mixtures are one (both absent, or the same activation at the same input variance). */
 function sameMixture(a: MagnitudeProfile["mixture"], b: MagnitudeProfile["mixture"]): boolean {
-  return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance);
+  return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance && a.slope === b.slope);
 }
 
 /** A copy of the profile with its scale multiplied by a factor (a loss scale, a per-tensor scale). */

@@ -140,7 +140,7 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
     case "gaussian-mixture": {
       const mixture = profile.mixture;
       if (mixture === undefined) return erf(t / (rms * Math.SQRT2));
-      return mixtureShareBelow(derivativeMixture(mixture.activation, mixture.inputVariance), t / rms);
+      return mixtureShareBelow(derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope), t / rms);
     }
   }
 }

@@ -444,6 +444,13 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     gradient.shape = "gaussian-mixture";
     gradient.mixture = { activation: name, inputVariance: input.q };
   }
+  // a leaky ReLU's φ' is 1 or the slope on either half of a zero-mean x: exactly two Gaussians, half the elements each,
+  // |slope| apart in scale (slope 0.01: half the elements 6.6 binades below the rest, which a Gaussian would not flush)
+  const a = stash.slope ?? 0;
+  if (name === "leaky-relu" && a !== 0 && Math.abs(a) !== 1 && output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.gaussian && Math.abs(input.mean) < 1e-12 && input.q > 0) {
+    gradient.shape = "gaussian-mixture";
+    gradient.mixture = { activation: name, inputVariance: input.q, slope: a };
+  }
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
   if (output.coupling !== undefined) gradient.coupling = output.coupling;
   // φ' gates two samples' gradients alike where their pre-activations agree: the cosine scales by E[φ'(u)φ'(v)]/E[φ'²]
