@@ -6,7 +6,7 @@ export default defineConfig({
     include: ["test/**/*.test.ts"],
     setupFiles: ["test/helpers/fast-check-seed.ts"],
     // vitest's default (one worker fewer than the cores) runs the suite in a single worker on a 2-core machine, where
-    // the main process mostly waits: one worker per core (at least two) takes ~a fifth off the wall time there
+    // the main process mostly waits: one worker per core (at least two) ran the suite in ~0.6× the wall time there (Dec 2026)
     maxWorkers: Math.max(2, availableParallelism()),
     testTimeout: 60_000,
     hookTimeout: 120_000,

@@ -4,7 +4,7 @@
  */
 import { maxOfNormals } from "../ops/pool/analytic.js";
 import type { OpElementShape, OpMixture, TailKind } from "../ops/types.js";
-import { derivativeMixture } from "../numeric/derivative-mixture.js";
+import { derivativeMixture, mixtureShareAbove } from "../numeric/derivative-mixture.js";
 import { erfc } from "../numeric/normal.js";
 import type { MagnitudeProfile } from "./types.js";
 
@@ -115,19 +115,15 @@ function gaussianMaxOf(n: number): number {
  * by bisection: the tail falls as m grows, and at m = g·max cᵢ it is at most the Gaussian's.
  */
 function mixtureMax(mixture: OpMixture, n: number): number {
-  const { weights, scales } = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
+  const law = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
   const g = gaussianMaxOf(n);
   const target = erfc(g / Math.SQRT2);
-  let widest = 0;
-  for (let i = 0; i < scales.length; i++) widest = Math.max(widest, scales[i] as number);
   let lo = 0;
-  let hi = g * widest;
+  // the scales fall along the components: the first is the widest
+  let hi = g * (law.scales[0] as number);
   for (let k = 0; k < 60 && hi - lo > 1e-10 * hi; k++) {
     const m = 0.5 * (lo + hi);
-    let tail = 0;
-    // the scales fall along the components: past m/c = 40 the tails are under the smallest double
-    for (let i = 0; i < weights.length && m < 40 * (scales[i] as number); i++) tail += (weights[i] as number) * erfc(m / ((scales[i] as number) * Math.SQRT2));
-    if (tail > target) lo = m;
+    if (mixtureShareAbove(law, m) > target) lo = m;
     else hi = m;
   }
   return 0.5 * (lo + hi);

@@ -8,7 +8,7 @@
  */
 import type { ActivationName } from "../spec/types.js";
 import { activationFunction } from "./activations.js";
-import { erf, normalCdf } from "./normal.js";
+import { erf, erfc, normalCdf } from "./normal.js";
 
 /**
  * The activations whose derivative has a scale mixture here: the smooth ones, whose derivative is not constant. Their
@@ -198,6 +198,16 @@ export function mixtureShareBelow(m: ScaleMixture, a: number): number {
   let sum = 0;
   for (let i = 0; i < m.weights.length; i++) sum += (m.weights[i] as number) * erf(a / ((m.scales[i] as number) * Math.SQRT2));
   return Math.min(1, sum);
+}
+
+/**
+ * P(|x| > a) for one element of a scale mixture of rms 1: Σ wᵢ·erfc(a/(cᵢ√2)). The scales fall along the components,
+ * and past a/cᵢ = 40 a component's tail is under the smallest double, so the sum stops there.
+ */
+export function mixtureShareAbove(m: ScaleMixture, a: number): number {
+  let sum = 0;
+  for (let i = 0; i < m.weights.length && a < 40 * (m.scales[i] as number); i++) sum += (m.weights[i] as number) * erfc(a / ((m.scales[i] as number) * Math.SQRT2));
+  return sum;
 }
 
 /** The a with P(|x| ≤ a) = p (0 < p < 1) for a scale mixture of rms 1, by bisection on log2 a. */

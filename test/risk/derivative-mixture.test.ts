@@ -1,11 +1,9 @@
 import { describe, expect, it } from "vitest";
 import { f16round } from "@petamoriken/float16";
-import { check } from "../../src/check.js";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { createRandom } from "../../src/numeric/random.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "../../src/risk/profile.js";
-import { runSimulation } from "../../src/simulate/engine.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { flushedAgainstSimulation, twoLayerRegressor } from "../helpers/flushed-against-simulation.js";
 
 // The gradient at a GELU or SiLU input is δ·φ'(x), δ Gaussian and independent of the Gaussian pre-activation x: a
 // Gaussian scale mixture over |φ'(x)|. φ' crosses zero, so far more of its elements round to zero than a Gaussian of
@@ -126,45 +124,15 @@ describe("the scale mixture of a gradient behind a smooth activation", () => {
 
 // An invented regressor for a weaving loom's tension sensors: a wide output keeps the loss gradient close to Gaussian,
 // so what is measured at the GELU and SiLU inputs is the derivative's law
-const LOOM = `name: loom-tension
-input: { features: 128, scale: 1.0 }
-training:
-  batch: 256
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: 0.01 }
-precision:
-  name: eight-bit-gradients
-  activations: binary32
-  weights: binary32
-  gradients: e5m2
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-  scaling: none
-layers:
-  - { type: dense, name: wide-1, width: 256, init: he-normal }
-  - { type: gelu, name: gelu-1 }
-  - { type: dense, name: wide-2, width: 256, init: he-normal }
-  - { type: silu, name: silu-2 }
-  - { type: dense, name: out, width: 128, init: glorot-normal }
-`;
+const LOOM = twoLayerRegressor("loom-tension", ["{ type: gelu, name: gelu-1 }", "{ type: silu, name: silu-2 }"]);
 
 describe("check against the simulation behind GELU and SiLU", () => {
   it("predicts the e5m2 flushed share of the gradients at the GELU and SiLU inputs within 25% of the measured", () => {
-    const parsed = parseSpec(LOOM, "loom.yaml");
-    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
     // loss scales putting the flush bound near 1% and 5% of the gradients' elements
-    for (const lossScale of [16, 128]) {
-      const answer = check(parsed.spec, { lossScale, plan: "eight-bit-gradients" });
-      const measured = runSimulation(parsed.spec, { seed: 1, draws: 3, lossScale });
-      for (const id of ["wide-1/activation-gradient", "wide-2/activation-gradient"]) {
-        const risk = answer.tensors.find((t) => t.id === id)?.risks.find((r) => r.format === "e5m2");
-        const flushed = measured.tensors.find((t) => t.id === id)?.median.counts.flushed;
-        if (risk === undefined || flushed === undefined) throw new Error(`${id} not judged or not measured`);
-        // the Gaussian law gave 0.07–0.11 of the measured here
-        expect(risk.start.flushedFraction / flushed, `${id} at ${lossScale}`).toBeGreaterThan(0.75);
-        expect(risk.start.flushedFraction / flushed, `${id} at ${lossScale}`).toBeLessThan(1.25);
-      }
+    for (const { id, lossScale, predicted, measured } of flushedAgainstSimulation(LOOM, "loom.yaml", [16, 128])) {
+      // the Gaussian law gave 0.07–0.11 of the measured here
+      expect(predicted / measured, `${id} at ${lossScale}`).toBeGreaterThan(0.75);
+      expect(predicted / measured, `${id} at ${lossScale}`).toBeLessThan(1.25);
     }
   });
 });

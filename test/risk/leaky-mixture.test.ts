@@ -1,11 +1,9 @@
 import { describe, expect, it } from "vitest";
 import { f16round } from "@petamoriken/float16";
-import { check } from "../../src/check.js";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { createRandom } from "../../src/numeric/random.js";
 import { energyBelow, fractionBelow } from "../../src/risk/profile.js";
-import { runSimulation } from "../../src/simulate/engine.js";
-import { parseSpec } from "../../src/spec/index.js";
+import { flushedAgainstSimulation, twoLayerRegressor } from "../helpers/flushed-against-simulation.js";
 
 // The gradient at a leaky ReLU's input is δ·φ'(x), φ'(x) = 1 for x > 0 and the slope otherwise (its definition): with
 // a zero-mean x, half the elements are scaled by the slope. At slope 0.01 that half sits 6.6 binades below the rest,
@@ -82,43 +80,13 @@ describe("the two-scale mixture of a gradient behind a leaky ReLU", () => {
 });
 
 // An invented regressor for a kiln's temperature probes, leaky ReLU as its hidden units
-const KILN = `name: kiln-probes
-input: { features: 128, scale: 1.0 }
-training:
-  batch: 256
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: 0.01 }
-precision:
-  name: eight-bit-gradients
-  activations: binary32
-  weights: binary32
-  gradients: e5m2
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-  scaling: none
-layers:
-  - { type: dense, name: wide-1, width: 256, init: he-normal }
-  - { type: leaky-relu, name: leaky-1, slope: 0.01 }
-  - { type: dense, name: wide-2, width: 256, init: he-normal }
-  - { type: leaky-relu, name: leaky-2, slope: 0.01 }
-  - { type: dense, name: out, width: 128, init: glorot-normal }
-`;
+const KILN = twoLayerRegressor("kiln-probes", ["{ type: leaky-relu, name: leaky-1, slope: 0.01 }", "{ type: leaky-relu, name: leaky-2, slope: 0.01 }"]);
 
 describe("check against the simulation behind a leaky ReLU", () => {
   it("predicts the e5m2 flushed share of the gradients at the leaky ReLU inputs within 25% of the measured", () => {
-    const parsed = parseSpec(KILN, "kiln.yaml");
-    if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-    for (const lossScale of [16, 128]) {
-      const answer = check(parsed.spec, { lossScale, plan: "eight-bit-gradients" });
-      const measured = runSimulation(parsed.spec, { seed: 1, draws: 3, lossScale });
-      for (const id of ["wide-1/activation-gradient", "wide-2/activation-gradient"]) {
-        const risk = answer.tensors.find((t) => t.id === id)?.risks.find((r) => r.format === "e5m2");
-        const flushed = measured.tensors.find((t) => t.id === id)?.median.counts.flushed;
-        if (risk === undefined || flushed === undefined) throw new Error(`${id} not judged or not measured`);
-        expect(risk.start.flushedFraction / flushed, `${id} at ${lossScale}: ${risk.start.flushedFraction} against ${flushed}`).toBeGreaterThan(0.75);
-        expect(risk.start.flushedFraction / flushed, `${id} at ${lossScale}: ${risk.start.flushedFraction} against ${flushed}`).toBeLessThan(1.25);
-      }
+    for (const { id, lossScale, predicted, measured } of flushedAgainstSimulation(KILN, "kiln.yaml", [16, 128])) {
+      expect(predicted / measured, `${id} at ${lossScale}: ${predicted} against ${measured}`).toBeGreaterThan(0.75);
+      expect(predicted / measured, `${id} at ${lossScale}: ${predicted} against ${measured}`).toBeLessThan(1.25);
     }
   });
 });

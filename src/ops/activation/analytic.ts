@@ -440,14 +440,14 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   // but the mixture made a deep tanh stack's check 4x slower: left Gaussian for now. Zeros in the input or a pool's or batch norm's gate change
   // the law of φ': left Gaussian there
   const input = stash.input;
-  if ((name === "gelu" || name === "silu") && output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.q > 0) {
-    gradient.shape = "gaussian-mixture";
-    gradient.mixture = { activation: name, inputVariance: input.q };
-  }
+  const mixes = output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.q > 0;
   // a leaky ReLU's φ' is 1 or the slope on either half of a zero-mean x: exactly two Gaussians, half the elements each,
   // |slope| apart in scale (slope 0.01: half the elements 6.6 binades below the rest, which a Gaussian would not flush)
   const a = stash.slope ?? 0;
-  if (name === "leaky-relu" && a !== 0 && Math.abs(a) !== 1 && output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.gaussian && Math.abs(input.mean) < 1e-12 && input.q > 0) {
+  if (mixes && (name === "gelu" || name === "silu")) {
+    gradient.shape = "gaussian-mixture";
+    gradient.mixture = { activation: name, inputVariance: input.q };
+  } else if (mixes && name === "leaky-relu" && a !== 0 && Math.abs(a) !== 1 && input.gaussian && Math.abs(input.mean) < 1e-12) {
     gradient.shape = "gaussian-mixture";
     gradient.mixture = { activation: name, inputVariance: input.q, slope: a };
   }
