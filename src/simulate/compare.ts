@@ -108,9 +108,12 @@ export interface Comparison {
   predictedOnly: string[];
 }
 
-/** Smallest magnitude that survives storage: half the smallest subnormal, or the smallest normal when subnormals flush. */
+/**
+ * Smallest magnitude that survives storage: half the smallest subnormal, or the smallest normal when subnormals flush
+ * (the plan says so, or the format is bfloat16, which check and the simulation take as flushing: common practice).
+ */
 function flushThreshold(format: Format, flushSubnormals: boolean): number {
-  return flushSubnormals ? format.minNormal : format.flushBound;
+  return flushSubnormals || format.subnormalsOftenFlushed ? format.minNormal : format.flushBound;
 }
 
 /**

@@ -121,9 +121,14 @@ class Recorder {
   }
 }
 
-/** The plan's overflow mode governs 8-bit conversions; IEEE 16- and 32-bit conversions overflow to infinity (IEEE 754-2019 §7.4). */
+/**
+ * The plan's overflow mode governs 8-bit conversions; IEEE 16- and 32-bit conversions overflow to infinity (IEEE 754-2019
+ * §7.4). bfloat16 flushes its subnormals whatever the plan says, as check judges it (much hardware does: common practice).
+ */
 function roundOptionsFor(options: RoundOptions, format: Format): RoundOptions {
-  return format.bits === 8 ? options : { ...options, overflow: "infinity-or-nan" };
+  const flushSubnormals = options.flushSubnormals === true || format.subnormalsOftenFlushed;
+  if (format.bits === 8) return flushSubnormals === options.flushSubnormals ? options : { ...options, flushSubnormals };
+  return { ...options, overflow: "infinity-or-nan", flushSubnormals };
 }
 
 /**
