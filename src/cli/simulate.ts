@@ -23,6 +23,7 @@ import {
   type SimulationResult,
 } from "../simulate/index.js";
 import { stepTrouble } from "../simulate/steps.js";
+import { flushThreshold, simulatedPlan } from "../simulate/compare.js";
 import { CheckInputError, gradientLossScale, unscaledReason } from "../check.js";
 import { scaleWords } from "../risk/words.js";
 import type { SpecResult } from "../spec/index.js";
@@ -492,14 +493,14 @@ function describe(r: ComparisonRow): string {
   return `${r.id}: ${measuredRmsWords(m)}, predicted ${formatValue(r.predictedRms)}${difference}${zeroText}${flushedText}${allText}`;
 }
 
-function stepLines(result: SimulationResult): string[] {
+/** The optimizer steps of the first draw: the table's columns and rows, and what its Adam column means (text and page). */
+function stepTable(result: SimulationResult): { columns: { title: string }[]; rows: Cell[][]; note: string | null } {
   const history = result.history[0] ?? [];
-  const out = [`Optimizer steps (draw with seed ${result.seeds[0]}):`];
   const largest = (values: number[]): string => (values.length > 0 ? formatPercent(Math.max(...values)) : "");
   // Adam's second moments, as check's second-moment rule judges them; non-finite updates only when some step made one
   const moments = history.some((h) => Object.keys(h.secondMomentsFlushed).length > 0);
   const nonFinite = history.some((h) => Object.values(h.nonFiniteUpdates).some((x) => x > 0));
-  const cells: Cell[][] = history.map((h) => {
+  const rows: Cell[][] = history.map((h) => {
     const ratios = Object.values(h.updateRatio);
     return [
       h.step,
@@ -522,18 +523,34 @@ function stepLines(result: SimulationResult): string[] {
     ...(moments ? [{ title: "most second moments flushed" }] : []),
     ...(nonFinite ? [{ title: "most update non-finite" }] : []),
   ];
-  out.push(renderTable(columns, cells).trimEnd());
-  if (moments) {
-    out.push(
-      `  most second moments flushed: the largest share, over the weights, of Adam's second moments nonzero before storage that ${result.formats.optimizerStates} flushed to 0 (at step 1, (1 − β2)·g², which check's second-moment rule judges).`,
-    );
-  }
-  out.push(...troubleLines(result));
+  const note = moments
+    ? `most second moments flushed: the largest share, over the weights, of Adam's second moments nonzero before storage that ${result.formats.optimizerStates} flushed to 0 (at step 1, (1 − β2)·g², which check's second-moment rule judges).`
+    : null;
+  return { columns, rows, note };
+}
+
+function stepLines(result: SimulationResult): string[] {
+  const { columns, rows, note } = stepTable(result);
+  const out = [`Optimizer steps (draw with seed ${result.seeds[0]}):`, renderTable(columns, rows).trimEnd()];
+  if (note !== null) out.push(`  ${note}`);
+  out.push(...troubleLines(result, "text"));
   return out;
 }
 
+/** The page's optimizer steps: the same table and notes as the terminal's, in HTML. */
+function stepsHtml(result: SimulationResult): string {
+  const { columns, rows, note } = stepTable(result);
+  const head = `<tr>${columns.map((c) => `<th>${escapeHtml(c.title)}</th>`).join("")}</tr>`;
+  const body = rows.map((row) => `<tr>${row.map((cell) => `<td>${escapeHtml(cell === null || cell === undefined ? "" : String(cell))}</td>`).join("")}</tr>`);
+  const notes = [...(note === null ? [] : [note]), ...troubleLines(result, "page").map((line) => line.trim())];
+  return (
+    `<h2>${escapeHtml(`Optimizer steps (draw with seed ${result.seeds[0]})`)}</h2>\n<table class="loss">${head}\n${body.join("\n")}</table>\n` +
+    notes.map((n) => `<p>${escapeHtml(n)}</p>`).join("\n")
+  );
+}
+
 /** Sentences saying how the run diverged in its steps, and that it sets exit code 1; none when it did not. */
-function troubleLines(result: SimulationResult): string[] {
+function troubleLines(result: SimulationResult, where: "text" | "page"): string[] {
   const trouble = stepTrouble(result);
   const out: string[] = [];
   const draws = result.seeds.length === 1 ? "" : ` (median over the ${result.seeds.length} draws)`;
@@ -551,8 +568,14 @@ function troubleLines(result: SimulationResult): string[] {
     const which = trouble.skippedSteps.length > 0 ? ` (step${trouble.skippedSteps.length === 1 ? "" : "s"} ${trouble.skippedSteps.join(", ")} in the draw above)` : "";
     out.push(`  ${plural(trouble.skipped, "step")} of ${result.steps} skipped${draws}${which}: a gradient was infinite or NaN once the loss scale was removed.`);
   }
-  const after = result.tensors.filter((t) => t.after !== undefined && overflowShare(t.after.counts) > 0).length;
-  if (after > 0) out.push(`  After the steps, ${plural(after, "stored tensor")} overflowed or held infinite or NaN values (the column "overflow after ${result.steps}").`);
+  const overflowed = result.tensors.filter((t) => t.after !== undefined && overflowShare(t.after.counts) > 0);
+  const after = overflowed.length;
+  // the terminal's table has a column for them; the page names them
+  const which =
+    where === "text"
+      ? ` (the column "overflow after ${result.steps}")`
+      : `: ${overflowed.slice(0, 6).map((t) => `${t.id} ${formatPercent(overflowShare(t.after!.counts))}`).join(", ")}${after > 6 ? `, and ${after - 6} more` : ""}`;
+  if (after > 0) out.push(`  After the steps, ${plural(after, "stored tensor")} overflowed or held infinite or NaN values${which}.`);
   if (out.length > 0) out.unshift("The run diverged, so the exit code is 1:");
   return out;
 }
@@ -699,11 +722,12 @@ export function renderSimulationHtml(report: SimulationReport): string {
   for (let k = Math.ceil(lo / step) * step; k <= hi; k += step) {
     ticks.push(`<line x1="${f(x(k))}" x2="${f(x(k))}" y1="${top - 6}" y2="${height - 6}" class="grid"/><text x="${f(x(k))}" y="${top - 10}" class="tick">2^${k}</text>`);
   }
+  const flushSubnormals = simulatedPlan(result)?.flushSubnormals ?? false;
   const body = bands
     .map(({ r, predicted, measured }, i) => {
       const y = top + i * rowHeight;
       const format = getFormat(r.format);
-      const edges = [Math.log2(format.flushBound), Math.log2(format.maxFinite)]
+      const edges = [Math.log2(flushThreshold(format, flushSubnormals)), Math.log2(format.maxFinite)]
         .filter((v) => v >= lo && v <= hi)
         .map((v) => `<line x1="${f(x(v))}" x2="${f(x(v))}" y1="${y + 1}" y2="${y + rowHeight - 1}" class="edge"/>`)
         .join("");
@@ -750,7 +774,7 @@ table.loss { border-collapse: collapse; margin: 8px 0; } table.loss td, table.lo
 <h1>${escapeHtml(`${result.specName}: measured against predicted magnitudes`)}</h1>
 <p>Plan ${escapeHtml(result.planName)}, ${escapeHtml(lossScaleWords(result))}, seeds ${escapeHtml(result.seeds.join(", "))}${result.rounded ? "" : ", no storage rounding"}.
 Grey: predicted 1%–99% of element magnitudes (median draw); blue: measured 1%–99% (median over draws); black and dashed blue marks: predicted and measured rms;
-red lines: the tensor's format edges (flush bound, largest finite). Labels in red: prediction and measurement disagree.${
+red lines: the tensor's format edges (flush bound, or the smallest normal where subnormals are flushed; largest finite). Labels in red: prediction and measurement disagree.${
     nonFinite
       ? "\nOn the right, ∞/NaN: the share of elements infinite or NaN in the run (after an overflow upstream), left out of the measured band and rms; " +
         "“none finite”: no finite nonzero element was left to measure."
@@ -762,6 +786,7 @@ ${lossTableHtml(result)}
 ${ticks.join("")}
 ${body}
 </svg>
+${result.steps > 0 ? stepsHtml(result) : ""}
 <p>${escapeHtml(ESTIMATE_NOTE)}</p>
 </body></html>
 `;

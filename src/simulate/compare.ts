@@ -9,6 +9,7 @@ import { erf, normalCdf } from "../ops/activation/moments.js";
 import { hasFiniteMagnitudes } from "./stats.js";
 import { derivativeMixture, mixtureShareBelow } from "../numeric/derivative-mixture.js";
 import type { MeasuredTensor, SimulationResult } from "./types.js";
+import type { PrecisionPlan } from "../spec/types.js";
 
 /**
  * Share of a tensor's elements that are zero once stored: exact zeros plus flushed values. The flushed share is
@@ -108,11 +109,16 @@ export interface Comparison {
   predictedOnly: string[];
 }
 
+/** The plan the run stored its tensors in. */
+export function simulatedPlan(result: SimulationResult): PrecisionPlan | undefined {
+  return result.simulatedSpec.plans.concat(result.simulatedSpec.precision).find((p) => p.name === result.planName);
+}
+
 /**
  * Smallest magnitude that survives storage: half the smallest subnormal, or the smallest normal when subnormals flush
  * (the plan says so, or the format is bfloat16, which check and the simulation take as flushing: common practice).
  */
-function flushThreshold(format: Format, flushSubnormals: boolean): number {
+export function flushThreshold(format: Format, flushSubnormals: boolean): number {
   return flushSubnormals || format.subnormalsOftenFlushed ? format.minNormal : format.flushBound;
 }
 
@@ -195,7 +201,7 @@ export function compareWithPrediction(
   const tolerance = options.tolerance ?? STANDING_TOLERANCE;
   const predicted = new Map<string, TensorPrediction>(prediction.tensors.map((t) => [t.id, t]));
   const full = new Map<string, TensorPrediction>((options.fullSize?.tensors ?? []).map((t) => [t.id, t]));
-  const plan = result.simulatedSpec.plans.concat(result.simulatedSpec.precision).find((p) => p.name === result.planName);
+  const plan = simulatedPlan(result);
   const flushSubnormals = plan?.flushSubnormals ?? false;
   const scaled8 = plan !== undefined && plan.scaling !== "none";
   const rows: ComparisonRow[] = [];

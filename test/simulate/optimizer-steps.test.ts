@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import { f16round } from "@petamoriken/float16";
-import { renderSimulationJson, renderSimulationText, simulationExitCode } from "../../src/cli/simulate.js";
+import { renderSimulationHtml, renderSimulationJson, renderSimulationText, simulationExitCode } from "../../src/cli/simulate.js";
 import { runSimulation } from "../../src/simulate/engine.js";
 import type { SimulationResult } from "../../src/simulate/types.js";
 import { parseSpec, type NetworkSpec } from "../../src/spec/index.js";
@@ -97,6 +97,17 @@ describe("simulate --steps sets exit code 1 when the run diverges (the help's an
     const json = JSON.parse(renderSimulationJson({ result })) as { stepTrouble: unknown; epsilon: unknown };
     expect(json.stepTrouble).toEqual({ skippedSteps: 1, stepsWithNonFiniteUpdates: 1 });
     expect(json.epsilon).toEqual({ value: 1e-10, stored: 0 });
+    // the page shows the same steps and the same divergence, naming the tensors the terminal's column marks
+    const page = renderSimulationHtml({ result });
+    expect(page).toContain("<h2>Optimizer steps (draw with seed 1)</h2>");
+    expect(page).toContain("<td>skipped (overflow)</td>");
+    expect(page).toContain("<th>most second moments flushed</th>");
+    expect(page).toContain("The run diverged, so the exit code is 1:");
+    expect(page).toContain("1 step of 2 skipped (step 2 in the draw above)");
+    expect(page).toMatch(/After the steps, \d+ stored tensors overflowed or held infinite or NaN values: [^<]*dense-0\/weight 100%/);
+    expect(page).not.toContain("the column");
+    // without steps, no such section
+    expect(renderSimulationHtml({ result: runSimulation(diverging, { lossScale: 1 }) })).not.toContain("Optimizer steps");
   });
 
   it("each of a skipped step and an overflow after the steps alone sets it", () => {
