@@ -104,6 +104,8 @@ export function lossSeed(
       // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
       const h = k * (1 / C - gaussianSoftmaxMoments(s2, C).second);
       gradient.curvature = { diagonal: h, diagonalSquare: h * h, rowSquares: (h * h * C) / (C - 1) };
+      // E[Σ_j z_j·(p_j − y_j)] = s²·Σ_j E[∂p_j/∂z_j] = s²·C·h/k per term (Stein's lemma; labels independent of the logits)
+      gradient.eulerSum = N * s2 * C * h;
     }
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
@@ -152,7 +154,11 @@ export function lossSeed(
     gradient.coupling = { elasticity: Math.sqrt(seed.logVar / V), budget: V };
   }
   // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
-  if (endLoss === undefined) gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
+  if (endLoss === undefined) {
+    gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
+    // E[Σ y·k(y − t)] = k·M·E[y²], targets independent of the outputs (as the seed, at the median draw)
+    gradient.eulerSum = k * M * medianOf(output.q, V);
+  }
   return {
     value: loss.reduction === "mean" ? residual : residual * M,
     valueLogVar: seed.logVar,

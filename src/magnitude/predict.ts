@@ -453,6 +453,7 @@ class Phase {
     // (present only with a value: a delete of an absent key is skipped, for speed)
     if (seed.gradient.windowMaximum !== undefined) delete seed.gradient.windowMaximum;
     if (seed.gradient.reluGated !== undefined) delete seed.gradient.reluGated;
+    if (seed.gradient.eulerSum !== undefined) delete seed.gradient.eulerSum;
     const branchGradient = this.backward(layer.branch as GraphLayer[], seed.gradient, chain(node, layer.name, [seed.factor], this.ledger), false, bottom);
     return { branchGradient: branchGradient ?? { q: 0, zeroFraction: 1, shape: "gaussian", logVar: 0 } };
   }
@@ -632,11 +633,34 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   // the loss's curvature is carried through linear layers, pointwise activations, layer and RMS norms, dropout, flattens,
   // attention and residual blocks only (see Curvature)
   if (input.curvature !== undefined && !CARRIES_CURVATURE.has(layer.family)) delete input.curvature;
+  // Σ z·δ over every unit is the same below a positively homogeneous layer of degree 1 as above it (Euler's theorem)
+  if (gradient.eulerSum !== undefined && homogeneous(layer)) input.eulerSum = gradient.eulerSum;
+  else if (input.eulerSum !== undefined) delete input.eulerSum;
   if (layer.family !== "dense" && layer.family !== "activation") {
     // the shared part's own spread is carried on through layer and RMS norms, dropout and residual blocks as well
     if (input.sharedLogVar !== undefined && !KEEPS_SHARED_SPREAD.has(layer.family)) delete input.sharedLogVar;
     if (input.cosineSquare !== undefined) delete input.cosineSquare;
     if (input.coupling !== undefined) delete input.coupling;
+  }
+}
+
+/** Whether a layer's output is positively homogeneous of degree 1 in its input at the start (zero biases: GraphWeight.variance). */
+function homogeneous(layer: GraphLayer): boolean {
+  switch (layer.family) {
+    case "dense":
+    case "conv2d":
+      return (maybeWeight(layer, "bias")?.variance ?? 0) === 0;
+    case "activation": {
+      const name = (layer.spec as { activation?: string }).activation;
+      return name === "relu" || name === "leaky-relu" || name === "identity";
+    }
+    case "max-pool":
+    case "average-pool":
+    case "dropout":
+    case "flatten":
+      return true;
+    default:
+      return false;
   }
 }
 
@@ -767,7 +791,7 @@ function assumptions(spec: NetworkSpec): string[] {
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
     "Weight gradients are sums over batch and positions whose terms are as correlated as the samples and positions are (the correlation map of Poole et al. 2016, for ReLU the arc-cosine kernel of Cho & Saul 2009), N·q·(1 + (N − 1)·ρ̄); the JSON's coherentRms gives the fully aligned upper bracket. Rows and columns of ReLU units off for the whole batch are exact zeros.",
-    "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down.",
+    "At the start, where the labels are independent of the inputs, the loss gradient holds the network's own output through the loss's curvature (Gauss–Newton), carried down through dense layers and pointwise activations: a layer's weight gradient gains N·M·W·E[x xᵀ] in every micro-batch (Stein's lemma) and a unit's gradient its own output; layer and RMS norms, dropout and flattens pass it on too (a norm takes the diagonal's mean out of it; a flatten leaves the layers below their own position's block), norms take it for their gain and gated feed-forward layers for their three weights; batch norm, residual, attention, gated, convolution and pooling layers pass none further down but its mean part in Σ z·δ over a layer's units z, the same below every positively homogeneous layer (Euler's theorem), of which each channel of a rectifier or max pool takes its share for the weights below.",
     "The finite-width spread of each scale is log-normal with variance κ·Σ1/width over the layers traversed (κ = 5 for ReLU; for other activations a heuristic κ = E[φ⁴]/E[φ²]² − 1 forward and 3E[φ'⁴]/E[φ'²]² − 1 backward); a dense layer not followed by an activation (a narrow output) counts 2·D/width instead, D = 1/batch + (1 − 1/batch)·E[c²] for the samples' cosines c, as its batch rms averages what the samples do not share, while the batch mean keeps 2/width; a gradient whose loss seed moves with the output (elasticity e) meets the output's own spread again in the transposed maps below it, 2e times what they add (at most the output's spread); norms reset it and residual skips do not add to it (Hanin & Rolnick 2018).",
     "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",

@@ -1,4 +1,5 @@
 /** Helpers shared by the analytic rules of several layer families. */
+import { featureWidth } from "../graph/shape.js";
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
 import type { InitSpec } from "../spec/types.js";
 import type { Curvature, Factor, Gradient, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
@@ -284,6 +285,19 @@ export function gradientSum(batch: number, positions: number, delta: Gradient, i
   const sample = sampleCorrelationOf(input) * sampleCorrelationOf(delta);
   const cross = crossCorrelationOf(input) * crossCorrelationOf(delta);
   return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta), cross);
+}
+
+/**
+ * The square of a channel's share of Gradient.eulerSum, E[S]² for S = Σ z·δ over one channel's batch × positions: the
+ * channels of a layer are alike, so each holds 1/channels of the sum over all of them (Euler's theorem); what S spreads
+ * about that mean is gradientSum's count (own algebra)
+ */
+export function eulerShare(g: Gradient, layer: GraphLayer): number {
+  const total = g.eulerSum;
+  const channels = featureWidth(layer.output);
+  if (total === undefined || !(channels > 0)) return 0;
+  const share = total / channels;
+  return share * share;
 }
 
 /**

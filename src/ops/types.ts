@@ -178,6 +178,14 @@ export interface Gradient {
    */
   homogeneousSum?: number;
   /**
+   * set by the loss at the start of the horizon and kept while every layer between this tensor z and the loss is
+   * positively homogeneous of degree 1 (dense and convolution layers with zero biases, ReLU, leaky ReLU, max and average
+   * pools, dropout, flatten): E[Σ over batch and every unit of z·δ], which Euler's theorem makes the same at each such
+   * layer, Σ y·∂L/∂y at the network's output y, N·E[yᵀ·M·y] = N·q_y·tr M by Stein's lemma (M the loss's curvature, see
+   * Curvature). A channel's homogeneous sum S holds its share, 1/channels, as a mean over draws
+   */
+  eulerSum?: number;
+  /**
    * set by a ReLU's backward rule on the gradient it passes down: the sample, position and cross (two samples at two
    * positions) correlations of the gradient before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose
    * pairs share E[relu(x)relu(x')], not E[x x']·E[relu'relu']

@@ -12,7 +12,7 @@ import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
 
@@ -651,7 +651,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       // its unit's own weights (as a max pool's sum); its pairs share the output's mean, E[x·φ'(w·x)] = E[φ'']·Cov(x, u) ≠ 0
       // for a rectifier (Stein's lemma), a part the same in every sample that the pairs of input and gradient miss. Not
       // where the loss's curvature is carried: the sum also holds its part there, which the layer below adds as its own
-      gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output);
+      gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output) + eulerShare(output, layer);
     }
     return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },

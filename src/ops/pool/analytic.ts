@@ -9,7 +9,7 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
-import { NO_FACTORS, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
+import { NO_FACTORS, eulerShare, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -224,7 +224,7 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     input.windowMaximum = k;
     // Σ a·δ_a over the routed pixels is Σ p·g at the output (a pixel picked by two windows gets g + g', a = p = p'):
     // a per-channel sum of batch × pixels products, paired as a weight gradient's terms (own algebra)
-    if (stash !== null) input.homogeneousSum = gradientSum(ctx.batch, pixelsOut, output, stash.output);
+    if (stash !== null) input.homogeneousSum = gradientSum(ctx.batch, pixelsOut, output, stash.output) + eulerShare(output, layer);
     return {
       input,
       factors: ctx.ledger
