@@ -37,7 +37,8 @@ import { PredictionRangeError } from "../magnitude/range.js";
 import { loadSpecReporting, reportGraphIssues } from "./load-spec.js";
 import { EXIT, raiseExitCode, UserError } from "./errors.js";
 import { splitList } from "./lists.js";
-import { derivativeMixture, mixtureQuantile } from "../numeric/derivative-mixture.js";
+import { mixtureQuantile } from "../numeric/derivative-mixture.js";
+import { fieldMixture } from "../numeric/gated-mixture.js";
 
 interface SimulateFlags {
   steps: string;
@@ -683,7 +684,7 @@ function predictedBand(p: MagnitudeProfile): [number, number] {
     case "gaussian-mixture": {
       const mixture = p.mixture;
       if (mixture === undefined) return [0.01253 * p.rms, 2.5758 * p.rms];
-      const law = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
+      const law = fieldMixture(mixture);
       return [mixtureQuantile(law, 0.01) * p.rms, mixtureQuantile(law, 0.99) * p.rms];
     }
   }

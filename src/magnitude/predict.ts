@@ -796,7 +796,7 @@ function assumptions(spec: NetworkSpec): string[] {
     "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];
-  const mixed = zeroCrossingActivations(spec, "activation");
+  const mixed = zeroCrossingActivations(spec);
   if (mixed.length > 0) {
     // δ·φ'(x) given x is N(0, s²φ'(x)²): a Gaussian scale mixture over |φ'(x)| (gradient independence, Schoenholz et al.
     // 2017; src/numeric/derivative-mixture.ts)
@@ -805,14 +805,12 @@ function assumptions(spec: NetworkSpec): string[] {
         "(a scale mixture): the derivative crosses zero, so they hold more values near zero than a Gaussian of the same rms.",
     );
   }
-  const crossing = zeroCrossingActivations(spec, "gated-feed-forward");
-  if (crossing.length > 0) {
-    // GELU'(x) = Φ(x) + xφ(x) vanishes near x = −0.75 and SiLU'(x) = σ(x)(1 + x(1 − σ(x))) near x = −1.28 (from their
-    // definitions, Hendrycks & Gimpel 2016; Elfwing et al. 2018), so δ·u·φ'(g) is a Gaussian mixture with mass near zero
+  if (activationsOf(spec, "gated-feed-forward").size > 0) {
+    // δ_up = δ_h·φ(g) and δ_gate = δ_h·u·φ'(g), Gaussian given g and u (gradient independence, Schoenholz et al. 2017;
+    // src/numeric/gated-mixture.ts)
     list.push(
-      `Gradients behind the ${crossing.join(" and ")} gates of gated feed-forward layers are taken as Gaussian elements, but the derivative crosses zero, so they hold more ` +
-        "values near zero than a Gaussian of the same rms: their flushed and subnormal shares can be underestimated by a decade or more " +
-        "(their rms and overflow are not affected); confirm flushing behind these activations with a short run.",
+      "Gradients at the up and gate projections of gated feed-forward layers are taken as Gaussian elements scaled by |φ(g)| and |u·φ'(g)| of independent Gaussian " +
+        "gate and up pre-activations g and u (scale mixtures; a softmax gate's as Gaussian): they hold far more values near zero, and reach further, than a Gaussian of the same rms.",
     );
   }
   // only token input has an embedding table (specs/README: an embedding must be the first layer, on token input)
@@ -834,14 +832,14 @@ function assumptions(spec: NetworkSpec): string[] {
   return list;
 }
 
-/** The activations of the spec (activation layers, or gated feed-forward gates; in blocks used too) whose derivative crosses zero, in a fixed order. */
-function zeroCrossingActivations(spec: NetworkSpec, family: "activation" | "gated-feed-forward"): string[] {
+// the activations of a family's layers anywhere in the spec (blocks walked once each)
+function activationsOf(spec: NetworkSpec, family: "activation" | "gated-feed-forward"): Set<string> {
   const found = new Set<string>();
   const seen = new Set<string>();
   const walk = (layers: readonly LayerSpec[]): void => {
     for (const layer of layers) {
       if (layer.family === family && (layer.family === "activation" || layer.family === "gated-feed-forward")) {
-        if (layer.activation === "gelu" || layer.activation === "silu") found.add(layer.activation);
+        found.add(layer.activation);
       } else if (layer.family === "residual") walk(layer.branch);
       else if (layer.family === "repeat") walk(layer.layers);
       else if (layer.family === "use" && !seen.has(layer.block)) {
@@ -853,6 +851,12 @@ function zeroCrossingActivations(spec: NetworkSpec, family: "activation" | "gate
     }
   };
   walk(spec.layers);
+  return found;
+}
+
+// the activation layers whose derivative crosses zero (GELU, SiLU), as the assumptions name them
+function zeroCrossingActivations(spec: NetworkSpec): string[] {
+  const found = activationsOf(spec, "activation");
   return ["gelu", "silu"].filter((name) => found.has(name)).map((name) => (name === "gelu" ? "GELU" : "SiLU"));
 }
 

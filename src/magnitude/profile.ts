@@ -4,7 +4,8 @@
  */
 import { maxOfNormals } from "../ops/pool/analytic.js";
 import type { OpElementShape, OpMixture, TailKind } from "../ops/types.js";
-import { derivativeMixture, mixtureShareAbove } from "../numeric/derivative-mixture.js";
+import { mixtureShareAbove } from "../numeric/derivative-mixture.js";
+import { fieldMixture } from "../numeric/gated-mixture.js";
 import { erfc } from "../numeric/normal.js";
 import type { MagnitudeProfile } from "./types.js";
 
@@ -115,7 +116,7 @@ function gaussianMaxOf(n: number): number {
  * by bisection: the tail falls as m grows, and at m = g·max cᵢ it is at most the Gaussian's.
  */
 function mixtureMax(mixture: OpMixture, n: number): number {
-  const law = derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope);
+  const law = fieldMixture(mixture);
   const g = gaussianMaxOf(n);
   const target = erfc(g / Math.SQRT2);
   let lo = 0;

@@ -37,13 +37,19 @@ export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant"
 
 /**
  * The scale mixture of a "gaussian-mixture" profile: the gradient behind `activation`, whose input x ~ N(0,
- * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts)
+ * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts), or
+ * as `of` says for a gated product's gradients (src/numeric/gated-mixture.ts)
  */
 export interface DerivativeMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
   inputVariance: number;
   /** leaky-relu: its negative slope (the two scales 1 and |slope|, each on half the elements) */
   slope?: number;
+  /**
+   * absent: the scale is |φ'(x)|; "value": |φ(x)| (a gated product's up gradient); "gate": |u·φ'(x)|, u an independent
+   * Gaussian (its gate gradient). relu and identity only with `of`: on their nonzero part both are the normal product
+   */
+  of?: "value" | "gate";
 }
 
 /**

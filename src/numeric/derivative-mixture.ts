@@ -79,7 +79,8 @@ const MEMO = new Map<string, ScaleMixture>();
 const MEMO_LIMIT = 4096;
 let nextKey = 1;
 
-function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
+/** The scale mixture over |f(√q·z)|, z ~ N(0, 1), of a piecewise monotone f (a derivative here; src/numeric/gated-mixture.ts also a value). */
+export function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
   const root = Math.sqrt(q);
   const z = new Float64Array(GRID + 1);
   const d = new Float64Array(GRID + 1);
@@ -165,7 +166,7 @@ function makeMixture(df: (x: number) => number, q: number): ScaleMixture {
 }
 
 // the mixture of components with these weights and falling scales, normalised to total weight 1 and rms 1
-function fromComponents(weights: readonly number[], scales: readonly number[]): ScaleMixture {
+export function fromComponents(weights: readonly number[], scales: readonly number[]): ScaleMixture {
   let total = 0;
   let second = 0;
   for (let i = 0; i < weights.length; i++) {

@@ -15,9 +15,11 @@ export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constan
 
 /** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
 export interface OpMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu";
+  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
   inputVariance: number;
   slope?: number;
+  /** absent: δ·φ'(x); "value": δ·φ(x) (a gated product's up gradient); "gate": δ·u·φ'(x), u an independent Gaussian */
+  of?: "value" | "gate";
 }
 
 /** Tail family of a tensor's elements beyond its shape, for element maxima. */

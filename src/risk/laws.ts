@@ -5,7 +5,8 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
-import { derivativeMixture, type ScaleMixture } from "../numeric/derivative-mixture.js";
+import type { ScaleMixture } from "../numeric/derivative-mixture.js";
+import { fieldMixture } from "../numeric/gated-mixture.js";
 
 const SQRT2 = Math.SQRT2;
 const SQRT3 = Math.sqrt(3);
@@ -207,7 +208,7 @@ export function mixtureOf(profile: MagnitudeProfile): ScaleMixture | undefined {
   if (profile.shape !== "gaussian-mixture" || given === undefined) return undefined;
   let m = MIXTURES.get(given);
   if (m === undefined) {
-    m = derivativeMixture(given.activation, given.inputVariance, given.slope);
+    m = fieldMixture(given);
     MIXTURES.set(given, m);
   }
   return m;

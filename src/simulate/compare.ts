@@ -7,7 +7,8 @@ import { getFormat, type Format } from "../formats/index.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { erf, normalCdf } from "../ops/activation/moments.js";
 import { hasFiniteMagnitudes } from "./stats.js";
-import { derivativeMixture, mixtureShareBelow } from "../numeric/derivative-mixture.js";
+import { mixtureShareBelow } from "../numeric/derivative-mixture.js";
+import { fieldMixture } from "../numeric/gated-mixture.js";
 import type { MeasuredTensor, SimulationResult } from "./types.js";
 import type { PrecisionPlan } from "../spec/types.js";
 
@@ -149,7 +150,7 @@ export function fractionBelow(profile: MagnitudeProfile, t: number): number {
     case "gaussian-mixture": {
       const mixture = profile.mixture;
       if (mixture === undefined) return erf(t / (rms * Math.SQRT2));
-      return mixtureShareBelow(derivativeMixture(mixture.activation, mixture.inputVariance, mixture.slope), t / rms);
+      return mixtureShareBelow(fieldMixture(mixture), t / rms);
     }
   }
 }

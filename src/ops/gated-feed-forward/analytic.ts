@@ -26,7 +26,7 @@ import {
   weightOf,
   weightSumHazard,
 } from "../common.js";
-import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, OpHazard, Signal, WeightGradientMoment } from "../types.js";
+import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, InnerGradient, OpContext, OpHazard, OpMixture, Signal, WeightGradientMoment } from "../types.js";
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
 import { densePullback } from "../dense/analytic.js";
@@ -48,6 +48,11 @@ export interface GatedStash {
   positionCross: { value: number; derivative: number; correlation: number };
   /** two samples (at one position or two): the same at the input's sample correlation */
   sampleCross: { value: number; derivative: number; correlation: number };
+}
+
+// the gate activations whose value and derivative give scale mixtures (src/numeric/gated-mixture.ts): all but softmax
+function isMixtureActivation(name: GatedFeedForwardLayer["activation"]): name is OpMixture["activation"] {
+  return name !== "softmax";
 }
 
 function slopeOf(spec: GatedFeedForwardLayer): number {
@@ -177,6 +182,18 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const samples = stash.sampleCross;
     const upGradient: Gradient = { q: upQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
     const gateGradient: Gradient = { q: gateQ, zeroFraction: stash.gateZeroFraction, shape: "gaussian", logVar: productGradient.logVar };
+    // δ_up = δ_h·φ(g) and δ_gate = δ_h·u·φ'(g) are, given g and u, Gaussian: scale mixtures over |φ(g)| and |u·φ'(g)|
+    // (src/numeric/gated-mixture.ts), not Gaussians of their rms, for a Gaussian δ_h; a ReLU gate's exact zeros (g ≤ 0)
+    // are its zero fraction, its nonzero part the normal product δ_h·|g| or δ_h·u
+    const name = spec.activation;
+    const zerosKnown = stash.gateZeroFraction === 0 || name === "relu";
+    if (productGradient.shape === "gaussian" && zerosKnown && stash.gate.q > 0 && isMixtureActivation(name)) {
+      const slope = name === "leaky-relu" ? { slope: slopeOf(spec) } : {};
+      upGradient.shape = "gaussian-mixture";
+      upGradient.mixture = { activation: name, inputVariance: stash.gate.q, ...slope, of: "value" };
+      gateGradient.shape = "gaussian-mixture";
+      gateGradient.mixture = { activation: name, inputVariance: stash.gate.q, ...slope, of: "gate" };
+    }
     upGradient.positionCorrelation = stash.gateSecond > 0 ? Math.min((cross.value * hShare) / stash.gateSecond, 1) : 0;
     gateGradient.positionCorrelation = stash.gateDerivativeSecond > 0 ? Math.min((cross.derivative * cross.correlation * hShare) / stash.gateDerivativeSecond, 1) : 0;
     // two samples, at one position or two: δ_up pairs share E[φ(g)φ(g')]·E[δ_h δ_h'], δ_gate pairs
