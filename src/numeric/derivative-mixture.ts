@@ -25,6 +25,9 @@ export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh"
  * reused), for the risk module's tables; `density` is Σ wᵢ/cᵢ (the density at 0 over a Gaussian's) and `fourth`
  * Σ wᵢ·cᵢ⁴ (E[x⁴] = 3·fourth). The scales fall with i; `restWeight[i]` is Σ_{j ≥ i} wⱼ and `restEnergy[i]` Σ_{j ≥ i} wⱼcⱼ²
  * (the share and the energy of the components from i on, which a threshold far above them holds whole).
+ * `prefix[i·PREFIX_POWERS + k]` is Σ_{j < i} wⱼ·(c_{i−1}/cⱼ)^k for k < PREFIX_POWERS (0 at i = 0): a threshold far under
+ * the scales of the first i components meets them through a power series in its ratio to c_{i−1}, whose coefficients
+ * these sums are (each ratio at most 1, so they neither overflow nor lose the smallest scales).
  */
 export interface ScaleMixture {
   readonly key: number;
@@ -32,9 +35,13 @@ export interface ScaleMixture {
   readonly scales: Float64Array;
   readonly restWeight: Float64Array;
   readonly restEnergy: Float64Array;
+  readonly prefix: Float64Array;
   readonly density: number;
   readonly fourth: number;
 }
+
+/** The powers k = 0 … PREFIX_POWERS − 1 that {@link ScaleMixture}'s `prefix` holds per component count. */
+export const PREFIX_POWERS = 28;
 
 // Bins of |φ'| half a binade wide: a log-uniform spread of scales over a bin of 2^h, told as one Gaussian at the bin's
 // geometric centre, shifts P(|x| ≤ t) for t far under the scale by E[1/c]·√(2^h) − 1 = 0.5% (own algebra), and the
@@ -190,7 +197,17 @@ export function fromComponents(weights: readonly number[], scales: readonly numb
     restWeight[i] = (restWeight[i + 1] as number) + (w[i] as number);
     restEnergy[i] = (restEnergy[i + 1] as number) + (w[i] as number) * (c[i] as number) ** 2;
   }
-  return { key: nextKey++, weights: w, scales: c, restWeight, restEnergy, density, fourth };
+  // from i to i + 1 components the reference scale moves from c_{i−1} to cᵢ: each sum's terms shrink by (cᵢ/c_{i−1})^k
+  const prefix = new Float64Array((w.length + 1) * PREFIX_POWERS);
+  for (let i = 0; i < w.length; i++) {
+    const ratio = i === 0 ? 0 : (c[i] as number) / (c[i - 1] as number);
+    let power = 1;
+    for (let k = 0; k < PREFIX_POWERS; k++) {
+      prefix[(i + 1) * PREFIX_POWERS + k] = power * (prefix[i * PREFIX_POWERS + k] as number) + (w[i] as number);
+      power *= ratio;
+    }
+  }
+  return { key: nextKey++, weights: w, scales: c, restWeight, restEnergy, prefix, density, fourth };
 }
 
 /** P(|x| ≤ a) for one element of a scale mixture of rms 1: Σ wᵢ·erf(a/(cᵢ√2)) (each component a Gaussian). */
@@ -202,12 +219,66 @@ export function mixtureShareBelow(m: ScaleMixture, a: number): number {
 }
 
 /**
- * P(|x| > a) for one element of a scale mixture of rms 1: Σ wᵢ·erfc(a/(cᵢ√2)). The scales fall along the components,
- * and past a/cᵢ = 40 a component's tail is under the smallest double, so the sum stops there.
+ * How many leading components of a scale mixture have t/(r·cᵢ·√2) under `limit` (computed so, as the plain sums compute
+ * their erf's argument): the scales fall, so the ratio rises along the components, and a binary search finds the end.
+ */
+export function prefixCount(m: ScaleMixture, r: number, t: number, limit: number): number {
+  const c = m.scales;
+  let lo = 0;
+  let hi = c.length;
+  while (lo < hi) {
+    const mid = (lo + hi) >> 1;
+    if (t / (r * (c[mid] as number) * Math.SQRT2) < limit) lo = mid + 1;
+    else hi = mid;
+  }
+  return lo;
+}
+
+// erf(y) = (2/√π)·Σ (−1)^k·y^{2k+1}/(k!·(2k+1)) (Abramowitz & Stegun 7.1.5). Below y = 1/2 the terms fall by more than
+// a factor 4 each, and the first one left out after ERF_TERMS is under y^24/(12!·25) < 6e-18 of the first: the sum is
+// erf to rounding.
+const ERF_TERMS = 12;
+const ERF_SERIES = (() => {
+  const coefficients = new Float64Array(ERF_TERMS);
+  let factor = 2 / Math.sqrt(Math.PI);
+  for (let k = 0; k < ERF_TERMS; k++) {
+    coefficients[k] = factor / (2 * k + 1);
+    factor *= -1 / (k + 1);
+  }
+  return coefficients;
+})();
+
+/**
+ * Σ_{j < p} wⱼ·erf(y·c_{p−1}/cⱼ) for 0 ≤ y < 1/2 (y the argument at the p-th component, whose scale is the smallest of
+ * them): the erf series of each component summed term by term, Σ_k aₖ·y^{2k+1}·Σ_j wⱼ(c_{p−1}/cⱼ)^{2k+1}, from the
+ * mixture's prefix sums. Each (c_{p−1}/cⱼ)^{2k+1} ≤ c_{p−1}/cⱼ, so the bound on the terms left out holds for the sum.
+ */
+export function prefixErf(m: ScaleMixture, p: number, y: number): number {
+  const sums = m.prefix;
+  const at = p * PREFIX_POWERS;
+  const y2 = y * y;
+  let sum = (ERF_SERIES[ERF_TERMS - 1] as number) * (sums[at + 2 * ERF_TERMS - 1] as number);
+  for (let k = ERF_TERMS - 2; k >= 0; k--) sum = sum * y2 + (ERF_SERIES[k] as number) * (sums[at + 2 * k + 1] as number);
+  return sum * y;
+}
+
+/**
+ * P(|x| > a) for one element of a scale mixture of rms 1: Σ wᵢ·erfc(a/(cᵢ√2)). The widest components, whose argument is
+ * under 1/2, give their share less their erf series (prefixErf; no cancellation: erfc > 0.47 there); the rest one by
+ * one. The scales fall along the components, so their tails fall too: the sum stops once the weight left times the
+ * last tail is under 1e-16 of it, or past a/cᵢ = 40, where a component's tail is under the smallest double.
  */
 export function mixtureShareAbove(m: ScaleMixture, a: number): number {
-  let sum = 0;
-  for (let i = 0; i < m.weights.length && a < 40 * (m.scales[i] as number); i++) sum += (m.weights[i] as number) * erfc(a / ((m.scales[i] as number) * Math.SQRT2));
+  if (!(a > 0)) return 1;
+  const w = m.weights;
+  const c = m.scales;
+  const p = prefixCount(m, 1, a, 0.5);
+  let sum = p > 0 ? (m.prefix[p * PREFIX_POWERS] as number) - prefixErf(m, p, a / ((c[p - 1] as number) * Math.SQRT2)) : 0;
+  for (let i = p; i < w.length && a < 40 * (c[i] as number); i++) {
+    const tail = erfc(a / ((c[i] as number) * Math.SQRT2));
+    sum += (w[i] as number) * tail;
+    if ((m.restWeight[i + 1] as number) * tail <= 1e-16 * sum) break;
+  }
   return sum;
 }
 

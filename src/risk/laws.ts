@@ -3,9 +3,9 @@
  * draws of the tensor's scale. Pure kernels: they never throw; degenerate inputs give 0 or 1.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { anyOf, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
+import { anyOf, CHEBYSHEV_ERFC_TAYLOR, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
-import type { ScaleMixture } from "../numeric/derivative-mixture.js";
+import { prefixCount, prefixErf, PREFIX_POWERS, type ScaleMixture } from "../numeric/derivative-mixture.js";
 import { fieldMixture } from "../numeric/gated-mixture.js";
 
 const SQRT2 = Math.SQRT2;
@@ -144,23 +144,65 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
-// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU, SiLU or leaky ReLU): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤
-// t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the weighted
-// sum of its components' laws; src/numeric/derivative-mixture.ts)
-// The scales fall with i, so t/(r·cᵢ) rises: past 9 a component's share below is 1 and its energy below 1 (as
-// gaussianEnergyBelow's ENERGY_ONE), past 40 its tail 0 (erfc(40/√2) is under the smallest double): the rest is taken whole.
+// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU, SiLU or leaky ReLU or a gated
+// product's): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤ t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the
+// weighted sum of its components' laws; src/numeric/derivative-mixture.ts).
+// The scales fall with i, so t/(r·cᵢ) rises. Three parts, so that a call costs a binary search, one series and the few
+// components near t instead of every component (~60 for a tanh' mixture, whose sums took most of a deep tanh stack's
+// check where its gradients were mixtures):
+// - the widest components, where the Gaussian's own kernels are series (erf's below an argument of 1/2, the energy's
+//   below t/(r·cᵢ) = 1) or where the fast erfc is a series of its own (CHEBYSHEV_ERFC_TAYLOR, argument under 1/4), meet t
+//   through those series summed over the components at once (the mixture's prefix sums: prefixErf, prefixEnergy,
+//   prefixTail);
+// - past t/(r·cᵢ) = 9 a component's share below is 1 and its energy below 1 (as gaussianEnergyBelow's ENERGY_ONE), past
+//   40 its tail 0 (erfc(40/√2) is under the smallest double): the rest is taken whole; and the sums also stop once the
+//   weight left times the last component's complement is under 1e-16 of the sum (each later one's is smaller);
+// - the components between, one by one with the Gaussian's kernels, as before.
+// The same numbers as the plain sums over every component to ~1e-15 relative (test/risk/mixture-laws.test.ts).
 const MIXTURE_ALL_BELOW = 9;
 const MIXTURE_NONE_ABOVE = 40;
+// where the plain sums' erf is its series (_math's erf) and where the fast erfc's Taylor series holds (see above)
+const ERF_SERIES_LIMIT = 0.5;
+const ERFC_SERIES_LIMIT = 0.25;
+const MIXTURE_REST = 1e-16;
+// Σ_{j < p} wⱼcⱼ²·E[Z²; |Z| ≤ a·c_{p−1}/cⱼ] for a = t/(r·c_{p−1}) < 1: the energy series (ENERGY_SERIES) of each
+// component summed term by term, wⱼcⱼ²·(a·c_{p−1}/cⱼ)^{2k+3} = c_{p−1}²·a^{2k+3}·wⱼ(c_{p−1}/cⱼ)^{2k+1}; 12 terms: at
+// a² < 1/2 the first left out is under 2^−24·3/(12!·27) ≈ 1.4e-17 of the first
+const ENERGY_PREFIX_TERMS = 12;
+function prefixEnergy(m: ScaleMixture, p: number, a: number): number {
+  const sums = m.prefix;
+  const at = p * PREFIX_POWERS;
+  const a2 = a * a;
+  const c = ENERGY_SERIES;
+  let sum = (c[ENERGY_PREFIX_TERMS - 1] as number) * (sums[at + 2 * ENERGY_PREFIX_TERMS - 1] as number);
+  for (let k = ENERGY_PREFIX_TERMS - 2; k >= 0; k--) sum = sum * a2 + (c[k] as number) * (sums[at + 2 * k + 1] as number);
+  const reference = m.scales[p - 1] as number;
+  return reference * reference * a * a2 * sum;
+}
+// Σ_{j < p} wⱼ·chebyshevErfc(y·c_{p−1}/cⱼ) for y < 1/4: the fit's own Taylor series summed term by term
+function prefixTail(m: ScaleMixture, p: number, y: number): number {
+  const sums = m.prefix;
+  const at = p * PREFIX_POWERS;
+  const b = CHEBYSHEV_ERFC_TAYLOR;
+  let sum = (b[PREFIX_POWERS - 1] as number) * (sums[at + PREFIX_POWERS - 1] as number);
+  for (let k = PREFIX_POWERS - 2; k >= 0; k--) sum = sum * y + (b[k] as number) * (sums[at + k] as number);
+  return sum;
+}
 function mixtureBelow(m: ScaleMixture, r: number, t: number): number {
   if (!(t > 0)) return 0;
   if (!(r > 0)) return 1;
   const w = m.weights;
   const c = m.scales;
-  let sum = 0;
-  for (let i = 0; i < w.length; i++) {
+  const p = prefixCount(m, r, t, ERF_SERIES_LIMIT);
+  let sum = p > 0 ? prefixErf(m, p, t / (r * (c[p - 1] as number) * SQRT2)) : 0;
+  for (let i = p; i < w.length; i++) {
     const ri = r * (c[i] as number);
     if (t >= MIXTURE_ALL_BELOW * ri) return Math.min(1, sum + (m.restWeight[i] as number));
-    sum += (w[i] as number) * gaussianBelow(ri, t);
+    // the argument is at least 1/2 here, where _math's erf is 1 − erfc
+    const tail = erfc(t / (ri * SQRT2));
+    sum += (w[i] as number) * (1 - tail);
+    const rest = m.restWeight[i + 1] as number;
+    if (rest * tail <= MIXTURE_REST * sum) return Math.min(1, sum + rest);
   }
   return Math.min(1, sum);
 }
@@ -169,11 +211,14 @@ function mixtureAbove(m: ScaleMixture, r: number, t: number): number {
   if (!(r > 0)) return 0;
   const w = m.weights;
   const c = m.scales;
-  let sum = 0;
-  for (let i = 0; i < w.length; i++) {
+  const p = prefixCount(m, r, t, ERFC_SERIES_LIMIT);
+  let sum = p > 0 ? prefixTail(m, p, t / (r * (c[p - 1] as number) * SQRT2)) : 0;
+  for (let i = p; i < w.length; i++) {
     const ri = r * (c[i] as number);
     if (t >= MIXTURE_NONE_ABOVE * ri) break;
-    sum += (w[i] as number) * gaussianAbove(ri, t);
+    const tail = erfc(t / (ri * SQRT2));
+    sum += (w[i] as number) * tail;
+    if ((m.restWeight[i + 1] as number) * tail <= MIXTURE_REST * sum) break;
   }
   return Math.min(1, sum);
 }
@@ -182,12 +227,17 @@ function mixtureEnergyBelow(m: ScaleMixture, r: number, t: number): number {
   if (!(r > 0)) return 1;
   const w = m.weights;
   const c = m.scales;
-  let sum = 0;
-  for (let i = 0; i < w.length; i++) {
+  // a component whose erf argument is under 1/2 has t/(r·cᵢ) < 1, where gaussianEnergyBelow is its series too
+  const p = prefixCount(m, r, t, ERF_SERIES_LIMIT);
+  let sum = p > 0 ? prefixEnergy(m, p, t / (r * (c[p - 1] as number))) : 0;
+  for (let i = p; i < w.length; i++) {
     const ci = c[i] as number;
     const ri = r * ci;
     if (t >= MIXTURE_ALL_BELOW * ri) return Math.min(1, sum + (m.restEnergy[i] as number));
-    sum += (w[i] as number) * ci * ci * gaussianEnergyBelow(ri, t);
+    const share = gaussianEnergyBelow(ri, t);
+    sum += (w[i] as number) * ci * ci * share;
+    const rest = m.restEnergy[i + 1] as number;
+    if (rest * (1 - share) <= MIXTURE_REST * sum) return Math.min(1, sum + rest);
   }
   return Math.min(1, sum);
 }
