@@ -7,6 +7,7 @@ import type { OpElementShape, OpMixture, TailKind } from "../ops/types.js";
 import { mixtureShareAbove } from "../numeric/derivative-mixture.js";
 import { fieldMixture } from "../numeric/gated-mixture.js";
 import { erfc } from "../numeric/normal.js";
+import { bisectDecreasing } from "../numeric/bisection.js";
 import type { MagnitudeProfile } from "./types.js";
 
 /** The moments a profile is made from (a forward Signal or a backward Gradient). */
@@ -110,6 +111,9 @@ function gaussianMaxOf(n: number): number {
   return max;
 }
 
+// mixtureMax's bisection: at most 60 halvings, to 1e-10 of the largest element
+const MAX_BISECTION = { maxSteps: 60, absTol: 0, relTol: 1e-10 };
+
 /**
  * The expected largest |x| of n elements of a Gaussian scale mixture of rms 1, taken where the mixture's tail
  * Σ wᵢ·P(|Z| > m/cᵢ) equals a Gaussian's at its own expected largest element (the Gaussian's rule for one component),
@@ -119,15 +123,9 @@ function mixtureMax(mixture: OpMixture, n: number): number {
   const law = fieldMixture(mixture);
   const g = gaussianMaxOf(n);
   const target = erfc(g / Math.SQRT2);
-  let lo = 0;
-  // the scales fall along the components: the first is the widest
-  let hi = g * (law.scales[0] as number);
-  for (let k = 0; k < 60 && hi - lo > 1e-10 * hi; k++) {
-    const m = 0.5 * (lo + hi);
-    if (mixtureShareAbove(law, m) > target) lo = m;
-    else hi = m;
-  }
-  return 0.5 * (lo + hi);
+  // the scales fall along the components: the first is the widest; the search starts at that end, a quarter of it wide
+  const widest = g * (law.scales[0] as number);
+  return bisectDecreasing((m) => mixtureShareAbove(law, m), target, 0, widest, MAX_BISECTION, widest, widest / 4);
 }
 
 /** Expected largest element magnitude of n nonzero elements (the fields of the moments it reads, passed one by one). */

@@ -224,7 +224,9 @@ export function mixtureShareBelow(m: ScaleMixture, a: number): number {
  */
 export function prefixCount(m: ScaleMixture, r: number, t: number, limit: number): number {
   const c = m.scales;
-  let lo = 0;
+  // a threshold in the tail is past the widest component already: no search
+  if (!(t / (r * (c[0] as number) * Math.SQRT2) < limit)) return 0;
+  let lo = 1;
   let hi = c.length;
   while (lo < hi) {
     const mid = (lo + hi) >> 1;

@@ -5,6 +5,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, CHEBYSHEV_ERFC_TAYLOR, erf, erfc, exp2, hashSlot, normalCdf, normalPdf, normalSf, normalUpperQuantile, LN2 } from "./_math.js";
 import { erf as preciseErf, erfc as preciseErfc, normalCdf as preciseNormalCdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { bisectDecreasing } from "../numeric/bisection.js";
 import { prefixCount, prefixErf, PREFIX_POWERS, type ScaleMixture } from "../numeric/derivative-mixture.js";
 import { fieldMixture } from "../numeric/gated-mixture.js";
 
@@ -1754,6 +1755,8 @@ function anyAtCount(v: number, n: number): number {
 // FIT[0] A, FIT[1] v½, FIT[2] σ_v, FIT[3] the step rule's last derivative in x (a typed array, not module variables:
 // a double stored in one is boxed at every store, garbage on the hot path)
 const FIT = new Float64Array(4);
+// the mixture's v½ by bisection on [−64, 16] to 1e-12 binade
+const FIT_BISECTION = { maxSteps: 64, absTol: 1e-12, relTol: 0 };
 function fitStepOf(n: number): void {
   const share = (STATE[I_SHARE] as number);
   const limit = anyOf(share, n);
@@ -1780,14 +1783,9 @@ function fitStepOf(n: number): void {
     // the mixture's tail Σ wᵢ·erfc(a/(cᵢ√2)) falls as a grows: a by bisection on log2 a, and the slope the sum of the
     // components' Gaussian slopes, 2φ(a/cᵢ)·(a/cᵢ)·ln 2 each
     const m = integrandMixture as ScaleMixture;
-    let low = -64;
-    let high = 16;
-    for (let k = 0; k < 64 && high - low > 1e-12; k++) {
-      const mid = 0.5 * (low + high);
-      if (mixtureAbove(m, 1, exp2(mid)) > half) low = mid;
-      else high = mid;
-    }
-    const v = 0.5 * (low + high);
+    // started where the widest component's Gaussian tail alone would put it (the others only lower the tail there)
+    const guess = Math.log2((m.scales[0] as number) * Math.max(roughUpperQuantile(half / 2), 1e-3));
+    const v = bisectDecreasing((x) => mixtureAbove(m, 1, exp2(x)), half, -64, 16, FIT_BISECTION, guess, 1 / 4);
     const a = exp2(v);
     FIT[1] = v;
     for (let i = 0; i < m.weights.length; i++) {
