@@ -616,7 +616,7 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
 }
 
 const CARRIES_COSINE: ReadonlySet<string> = new Set(["dense", "activation", "residual", "layer-norm", "rms-norm", "batch-norm"]);
-const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual"]);
+const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual", "conv2d", "flatten", "max-pool", "average-pool"]);
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "attention"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
 const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "flatten", "attention"]);
@@ -637,7 +637,8 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   if (gradient.eulerSum !== undefined && homogeneous(layer)) input.eulerSum = gradient.eulerSum;
   else if (input.eulerSum !== undefined) delete input.eulerSum;
   if (layer.family !== "dense" && layer.family !== "activation") {
-    // the shared part's own spread is carried on through layer and RMS norms, dropout and residual blocks as well
+    // the shared part's own spread is carried on through layer and RMS norms, dropout, residual blocks, convolutions,
+    // pools and flattens as well
     if (input.sharedLogVar !== undefined && !KEEPS_SHARED_SPREAD.has(layer.family)) delete input.sharedLogVar;
     if (input.cosineSquare !== undefined) delete input.cosineSquare;
     if (input.coupling !== undefined) delete input.coupling;

@@ -53,6 +53,8 @@ export interface Signal {
      * it differs from κ (a convolution's channel sums many patches of few inputs: about 2/fan_in). Set by conv2d
      */
     unitKappa?: number;
+    /** the pairs of terms each unit sums, where a unit sums many (a convolution's channel): see UnitPairs */
+    unit?: UnitPairs;
   };
   /** whether the tensor is roughly zero-mean Gaussian (the input assumption of the activation rules) */
   gaussian: boolean;
@@ -127,6 +129,25 @@ export interface ChannelSpread {
   position: number;
 }
 
+/**
+ * The T = batch × positions terms t that one unit of a random map sums (a convolution's channel, the same weights at
+ * every pixel), by their pairs: the unit's sum over them of f(w·p_t) has Var/E² = (1/T)·g(1) + Σ over pairs of g(c),
+ * g(c) = Cov(f(u), f(v))/E[f]² at the pair's cosine c (own algebra). Pairs of one sample and of two samples form a class
+ * each: its share of the T² ordered pairs, the mean cosine and the cosine's standard deviation over the pairs.
+ */
+export interface UnitPairs {
+  /** 1/T */
+  single: number;
+  same: PairClass;
+  other: PairClass;
+}
+
+export interface PairClass {
+  share: number;
+  mean: number;
+  deviation: number;
+}
+
 /** The backward moments of one gradient tensor. */
 export interface Gradient {
   /** E[δ²] over all elements (zeros included) */
@@ -139,7 +160,7 @@ export interface Gradient {
   /** shape "gaussian-mixture": the activation derivative that scales the Gaussian δ */
   mixture?: OpMixture;
   /** set by a transposed weight map: the width it produced and the κ counted, for the next activation to replace */
-  fresh?: { width: number; kappa: number };
+  fresh?: { width: number; kappa: number; unit?: UnitPairs };
   /** as Signal.sharedLogVar: variance over draws of ln of the part the samples share, where it differs from logVar */
   sharedLogVar?: number;
   /** as Signal.correlationSquare: E[c²] of two samples' gradient vectors' cosine (one position per sample) */

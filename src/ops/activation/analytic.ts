@@ -14,6 +14,7 @@ import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
 import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
+import { backwardUnitKappa, forwardUnitKappa } from "../unit-pairs.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
 
 /** What the activation backward rule needs. */
@@ -306,7 +307,7 @@ export function pointwiseForward(
   const derivativeMean = keep * m.derivativeMean + input.zeroFraction * d0;
   const zeroFraction = (f0 === 0 ? input.zeroFraction : 0) + keep * m.zeroFraction;
   let logVar = input.logVar;
-  if (input.fresh !== undefined) logVar = Math.max(logVar + (forwardKappa(m) - input.fresh.kappa) / input.fresh.width, 0);
+  if (input.fresh !== undefined) logVar = Math.max(logVar + (forwardUnitKappa(name, slope, qNonzero, input.fresh.unit, forwardKappa(m)) - input.fresh.kappa) / input.fresh.width, 0);
   const { shape, bound } = outputShape(name, input);
   // two samples' pre-activations u, v have correlation c = shared/q; E[φ(u)φ(v)] is the shared part of the output
   const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
@@ -415,7 +416,14 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     positionCross = sampleCross;
   }
   let logVar = output.logVar;
-  if (output.fresh !== undefined) logVar = Math.max(logVar + (kappaBackward - output.fresh.kappa) / output.fresh.width, 0);
+  const fresh = output.fresh;
+  if (fresh !== undefined) {
+    // a convolution's channels sum their terms' pairs (src/ops/unit-pairs.ts); elsewhere one term's κ
+    const pre = stash.input;
+    const unit = fresh.unit === undefined ? undefined : { q: pre.q, zeroFraction: pre.zeroFraction, same: positionCorrelationOf(pre), other: sampleCorrelationOf(pre), unit: pre.fresh?.unit };
+    const kappa = unit === undefined ? kappaBackward : backwardUnitKappa(name as ActivationName, stash.slope ?? 0, unit, fresh.unit, kappaBackward, k !== undefined);
+    logVar = Math.max(logVar + (kappa - fresh.kappa) / fresh.width, 0);
+  }
   const zeroFraction = 1 - (1 - derivativeZeroFraction) * (1 - output.zeroFraction);
   // the fields set below are keys from the start, undefined where absent (as linearGradient's)
   const gradient: Gradient = {

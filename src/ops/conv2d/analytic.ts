@@ -9,6 +9,7 @@ import type { Conv2dLayer } from "../../spec/types.js";
 import { crossCorrelationOf, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import { type DenseStash, linearBackward, linearForward } from "../dense/analytic.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { conv2dGeometry } from "./kernel.js";
 
 const PADDING_SOURCE = "zero padding: a border pixel sums only the taps inside the image (own algebra, the conv's definition)";
@@ -67,8 +68,10 @@ export function paddingShares(t: TapCounts): { inside: number; channelMean: numb
  * in the channel's own weights: Var/E² = 2·tr G²/(tr G)² = 2·(1/T + the pairs' mean E[c²]), c the cosine of two
  * terms' patches with the bias (moments of a Gaussian quadratic form, as the dense layer's batch spread); a patch of
  * fan_in values whose mean cosine is c̄ spreads by (1 − c̄²)²/fan_in about it (Fisher 1915). For unrelated patches it
- * is about 2/fan_in, where the tensor's spread counts 2 per channel (own algebra; He et al. 2015 initialisation:
- * ‖w_c‖² is var·χ² of fan_in)
+ * is about 2/fan_in, where a dense map's one-sample rule counts 2 per channel (own algebra; He et al. 2015
+ * initialisation: ‖w_c‖² is var·χ² of fan_in). The channels are independent given the input, so the tensor's mean
+ * square gains this κ/channels in ln-variance (Hanin & Nica 2019's κ/width, with the channel's κ), and the pairs go on
+ * to the activation, which sums its own f(w_c·p_t) over the same terms (UnitPairs)
  */
 function unitSpread(ctx: OpContext, layer: GraphLayer, input: Signal, output: Signal): void {
   const fresh = output.fresh;
@@ -78,11 +81,29 @@ function unitSpread(ctx: OpContext, layer: GraphLayer, input: Signal, output: Si
   const b = (biasWeight === undefined ? 0 : ctx.variance(biasWeight)) / output.q;
   const a = 1 - b;
   const fanIn = Math.max(w.fanIn, 1);
-  const pairSquare = (mean: number): number => a * a * (mean * mean + (1 - mean * mean) ** 2 / fanIn) + 2 * a * b * mean + b * b;
-  const batch = Math.max(ctx.batch, 1);
-  const terms = batch * positionCount(layer.output);
-  const D = 1 / terms + (1 / batch - 1 / terms) * pairSquare(positionCorrelationOf(input)) + (1 - 1 / batch) * pairSquare(sampleCorrelationOf(input));
-  output.fresh = { ...fresh, unitKappa: 2 * Math.min(D, 1) };
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean: a * mean + b, deviation: (a * (1 - mean * mean)) / Math.sqrt(fanIn) });
+  const unit = unitPairs(ctx.batch, positionCount(layer.output), pairs(positionCorrelationOf(input)), pairs(sampleCorrelationOf(input)));
+  const kappa = linearUnitKappa(unit);
+  output.logVar = input.logVar + kappa / fresh.width;
+  output.fresh = { width: fresh.width, kappa, unitKappa: kappa, unit };
+}
+
+/**
+ * The input gradient's channel sums over batch × input pixels the same way: δ_in = Σ w·δ_out over the fan_out =
+ * out-channels × k² weights of that input channel, a Gaussian quadratic form in them, whose pairs of terms are the
+ * output gradient's at two pixels of one sample and at two samples (at one pixel in P, at two pixels otherwise), spread
+ * by Fisher's (1 − c̄²)²/fan_out (own algebra, as unitSpread)
+ */
+function backwardUnitSpread(batch: number, layer: GraphLayer, fanOut: number, output: Gradient, input: Gradient, width: number): void {
+  const pixels = positionCount(layer.output);
+  const other = (sampleCorrelationOf(output) + (pixels - 1) * crossCorrelationOf(output)) / pixels;
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean, deviation: (1 - mean * mean) / Math.sqrt(Math.max(fanOut, 1)) });
+  const unit = unitPairs(batch, positionCount(layer.input), pairs(positionCorrelationOf(output)), pairs(other));
+  const kappa = linearUnitKappa(unit);
+  const before = input.logVar;
+  input.logVar = output.logVar + kappa / width;
+  input.fresh = { width, kappa, unit };
+  if (input.sharedLogVar !== undefined) input.sharedLogVar += input.logVar - before;
 }
 
 export const conv2dRule: AnalyticRule<DenseStash> = {
@@ -128,6 +149,7 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     const variance = ctx.variance(w);
     const gain = variance * connections;
     const result = linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
+    if (result.input !== undefined) backwardUnitSpread(ctx.batch, layer, w.fanOut, output, result.input, inChannels);
     if (taps === undefined) return result;
     const pixels = taps.outRows * taps.outColumns;
     const leak = borderLeak(ctx.batch, taps, output);

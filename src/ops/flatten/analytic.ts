@@ -14,6 +14,8 @@ export const flattenRule: AnalyticRule<null> = {
     const input = gradientCopy(output);
     input.positionCorrelation = 0;
     input.crossCorrelation = 0;
+    // a reshape keeps every sum, the shared part's spread with them
+    if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar;
     const curvature = output.curvature;
     if (curvature !== undefined) {
       // the loss's curvature over the flat features couples positions; a layer below acts on one position's D features

@@ -13,7 +13,7 @@ import { activationMoments } from "../../numeric/activations.js";
 import { crossMoments } from "../activation/analytic.js";
 import { sumLogVarOf } from "../dense/analytic.js";
 import { type ChannelInverse, channelInverse } from "./channels.js";
-import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, betweenBatches, correlatedSum, eulerShare, crossCorrelationOf, factor, fmt, gradientBetween, gradientSum, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
 import type { AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
 
 /** What the norm backward rule needs. */
@@ -169,6 +169,11 @@ export const normRule: AnalyticRule<NormStash> = {
     const homogeneousSum = output.homogeneousSum;
     const homogeneous = homogeneousSum !== undefined && stash.gainSquared > 0 && (normBias === undefined || ctx.variance(normBias) === 0);
     const gainQ = homogeneous ? homogeneousSum / stash.gainSquared : correlatedSum(ctx.batch, positions, stash.normalisedSecond * output.q, ...pairs) + aligned;
+    // a batch norm's gain and bias gradients are one sum per channel, each nearly Gaussian about the channels' common
+    // mean (eulerShare): their mean square over the channels spreads as a chi-square of that many, Var/E² = 2/channels
+    // beyond the gradient's scale (as sumLogVarOf; own algebra)
+    const common = homogeneous && homogeneousSum > 0 ? Math.min(eulerShare(output, layer) / homogeneousSum, 1) : 0;
+    const channelSums = layer.family === "batch-norm" ? LINEAR_KAPPA / Math.max(weightOf(layer, "gain").elements, 1) : 0;
     const weightGradients: WeightGradientMoment[] = [
       {
         weight: "gain",
@@ -179,7 +184,7 @@ export const normRule: AnalyticRule<NormStash> = {
         coherentQ: terms * terms * stash.normalisedSecond * output.q,
         terms,
         zeroFraction: 0,
-        logVar: output.logVar,
+        logVar: output.logVar + channelSums * (1 - common),
         rule: ctx.ledger ? () => `sum of ${terms} products (batch × positions) of normalised input and gradient` : "",
       },
     ];
@@ -192,7 +197,7 @@ export const normRule: AnalyticRule<NormStash> = {
         coherentQ: terms * terms * output.q,
         terms,
         zeroFraction: 0,
-        logVar: layer.family === "batch-norm" ? output.logVar : sumLogVarOf(output, biasSum, terms * output.q, normBias.elements),
+        logVar: layer.family === "batch-norm" ? output.logVar + channelSums : sumLogVarOf(output, biasSum, terms * output.q, normBias.elements),
         rule: ctx.ledger ? () => `sum of ${terms} gradients (batch × positions)` : "",
       });
     }

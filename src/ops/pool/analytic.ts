@@ -11,6 +11,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
 import { NO_FACTORS, eulerShare, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import { copiedUnit } from "../unit-pairs.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
 const MAX_SOURCE = "maximum of k independent Gaussian elements (order statistics, computed by quadrature)";
@@ -185,6 +186,12 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
         input.crossCorrelation = (within * sampleCorrelationOf(output) + (pixels - 1 - within) * output.crossCorrelation) / (pixels - 1);
       }
       input.zeroFraction = share * k >= 1 ? output.zeroFraction : 1 - share * k;
+      // a pool's sums over a channel's pixels keep the gradient's (and its shared part's) own draw-to-draw spread:
+      // each output gradient goes to its window's pixels whole (routing) or in k equal parts (own algebra)
+      if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar;
+      // a rectifier below then gates a unit's copies, each by its own pixel: its sum's pairs as copiedUnit says
+      const fresh = output.fresh;
+      if (fresh !== undefined) input.fresh = { width: fresh.width, kappa: fresh.kappa, unit: copiedUnit(fresh.unit, fresh.kappa, ctx.batch, k, pixels) };
       return {
         input,
         factors: ctx.ledger ? [factor(ratio, () => `average of ${k}: each input gets 1/${k} of ${coveringWords(share * k)}`, AVERAGE_SOURCE)] : NO_FACTORS,
@@ -222,6 +229,7 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     }
     input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
     input.windowMaximum = k;
+    if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar;
     // Σ a·δ_a over the routed pixels is Σ p·g at the output (a pixel picked by two windows gets g + g', a = p = p'):
     // a per-channel sum of batch × pixels products, paired as a weight gradient's terms (own algebra)
     if (stash !== null) input.homogeneousSum = gradientSum(ctx.batch, pixelsOut, output, stash.output) + eulerShare(output, layer);
