@@ -3,7 +3,7 @@
  * pixel of every sample), from the pairs of those terms (UnitPairs in ./types.ts).
  */
 import { activationFunction } from "../numeric/activations.js";
-import { pairCovariance, pairCovarianceAt } from "../numeric/spread.js";
+import { pairCovariance, pairCovarianceAt } from "../numeric/pair-covariance.js";
 import type { ActivationName } from "../spec/types.js";
 import type { PairClass, UnitPairs } from "./types.js";
 
