@@ -12,7 +12,7 @@ import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
 import type { LayerSpec, NetworkSpec } from "../spec/types.js";
-import { lossSeed } from "./loss.js";
+import { lossSeed, MIXED_ROWS } from "./loss.js";
 import { plainProfile, profileOf } from "./profile.js";
 import { carriedMeanSquare, predictionRangeError } from "./range.js";
 import type {
@@ -433,7 +433,16 @@ class Phase {
       const input = result.input;
       if (input !== undefined) tidyGradient(layer, input, gradient);
       const inner = result.inner;
-      for (let k = 0; k < inner.length; k++) this.innerGradient(layer, prefix, inner[k] as InnerGradient, current);
+      // a gated product's inner gradients lie below its down projection: they carry the row scale too
+      const innerRows = layer.family === "gated-feed-forward" ? rowsBelow(layer, gradient) : undefined;
+      for (let k = 0; k < inner.length; k++) {
+        const one = inner[k] as InnerGradient;
+        if (innerRows !== undefined) {
+          one.gradient.rows = innerRows;
+          one.gradient.rowCount = gradient.rowCount;
+        }
+        this.innerGradient(layer, prefix, one, current);
+      }
       const weightGradients = result.weightGradients;
       this.summed.length = 0;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
@@ -636,6 +645,15 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
   // Σ z·δ over every unit is the same below a positively homogeneous layer of degree 1 as above it (Euler's theorem)
   if (gradient.eulerSum !== undefined && homogeneous(layer)) input.eulerSum = gradient.eulerSum;
   else if (input.eulerSum !== undefined) delete input.eulerSum;
+  // a squared-error head's row scale: a transposed weight map spreads each row's residuals over its features, and every
+  // layer but attention keeps the rows apart (attention mixes a sample's positions, each with its own residuals)
+  const rows = rowsBelow(layer, gradient);
+  if (rows !== undefined) input.rows = rows;
+  else if (input.rows !== undefined) delete input.rows;
+  if (rows === undefined && gradient.rowsPending !== undefined && layer.family !== "attention") input.rowsPending = gradient.rowsPending;
+  else if (input.rowsPending !== undefined) delete input.rowsPending;
+  if (input.rows !== undefined || input.rowsPending !== undefined) input.rowCount = gradient.rowCount;
+  else if (input.rowCount !== undefined) delete input.rowCount;
   if (layer.family !== "dense" && layer.family !== "activation") {
     // the shared part's own spread is carried on through layer and RMS norms, dropout, residual blocks, convolutions,
     // pools and flattens as well
@@ -643,6 +661,14 @@ function tidyGradient(layer: GraphLayer, input: Gradient, gradient: Gradient): v
     if (input.cosineSquare !== undefined) delete input.cosineSquare;
     if (input.coupling !== undefined) delete input.coupling;
   }
+}
+
+/** The row scale (Gradient.rows) of the gradient below a layer, from the gradient above it. */
+function rowsBelow(layer: GraphLayer, gradient: Gradient): number | undefined {
+  const family = layer.family;
+  if (family === "attention") return undefined;
+  if (gradient.rows !== undefined) return gradient.rows;
+  return family === "dense" || family === "conv2d" || family === "gated-feed-forward" ? gradient.rowsPending : undefined;
 }
 
 /** Whether a layer's output is positively homogeneous of degree 1 in its input at the start (zero biases: GraphWeight.variance). */
@@ -787,7 +813,7 @@ function runPhase(
   return { tensors: p.tensors, hazards: p.hazards };
 }
 
-function assumptions(spec: NetworkSpec): string[] {
+function assumptions(spec: NetworkSpec, graph: Graph): string[] {
   const t = spec.training;
   const list = [
     "Mean-field estimates at initialisation (Poole et al. 2016; Schoenholz et al. 2017): weights independent and zero-mean, pre-activations Gaussian, gradients independent of the forward pass but for the loss's own curvature (below); these are estimates, so confirm them with a short run.",
@@ -804,6 +830,14 @@ function assumptions(spec: NetworkSpec): string[] {
     list.push(
       `Gradients at the input of ${mixed.join(" and ")} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
         "(a scale mixture): the derivative crosses zero, so they hold more values near zero than a Gaussian of the same rms.",
+    );
+  }
+  const head = graph.output.layout === "features" ? graph.output.features : graph.output.layout === "image" ? graph.output.channels : 1;
+  if (t.loss.kind === "mean-squared-error" && head <= MIXED_ROWS) {
+    // a row's k residuals, spread by a transposed weight map: Gaussian given their norm (src/numeric/gated-mixture.ts)
+    list.push(
+      `Below the squared-error head of ${head} output${head === 1 ? "" : "s"}, each row's gradient (a sample's, or a position's) is taken as Gaussian elements scaled by the row's residual norm, √(χ²_${head}/${head}) over its mean ` +
+        "(a scale mixture, cut at the smallest row of a typical step): far more of them lie near zero than in a Gaussian of the same rms; attention layers are taken to average the rows' scales away.",
     );
   }
   if (activationsOf(spec, "gated-feed-forward").size > 0) {
@@ -972,7 +1006,7 @@ function predicted(graph: Graph, spec: NetworkSpec, options: PredictOptions, own
   // both passes visit the same operations in the same order: the end pass completes the start pass's tensors and sites
   runPhase(graph, spec, "end", false, lossScale, start);
   const tensors: TensorPrediction[] = start.tensors;
-  return { specName: spec.name, tensors, hazards: start.hazards, assumptions: assumptions(spec) };
+  return { specName: spec.name, tensors, hazards: start.hazards, assumptions: assumptions(spec, graph) };
 }
 
 /** Where the loss value's rule comes from: the loss's definition (the seed's source is that of its gradient). */

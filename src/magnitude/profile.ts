@@ -23,6 +23,9 @@ export interface Moments {
   shared?: number;
   positionCorrelation?: number;
   mixture?: OpMixture;
+  /** a gradient's row scale (Gradient.rows): its Gaussian or mixture elements are then scaled by √(χ²_k/k) too */
+  rows?: number;
+  rowCount?: number;
 }
 
 const EULER_GAMMA = 0.5772156649015329;
@@ -174,7 +177,14 @@ function maxElementOf(
  */
 export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   // each field is read once: the moments come in many object shapes, so every read is a slow lookup
-  return profileFrom(m.q, m.zeroFraction, m.shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, m.mixture);
+  const rows = m.rows;
+  const shape = m.shape;
+  if (rows !== undefined && (shape === "gaussian" || shape === "gaussian-mixture")) {
+    const rowCount = m.rowCount;
+    const mixture = shape === "gaussian-mixture" && m.mixture !== undefined ? { ...m.mixture, rows, rowCount } : { rows, rowCount };
+    return profileFrom(m.q, m.zeroFraction, "gaussian-mixture", m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, mixture);
+  }
+  return profileFrom(m.q, m.zeroFraction, shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, m.mixture);
 }
 
 /**

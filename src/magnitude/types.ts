@@ -41,8 +41,9 @@ export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant"
  * as `of` says for a gated product's gradients (src/numeric/gated-mixture.ts)
  */
 export interface DerivativeMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
-  inputVariance: number;
+  /** absent: no activation factor, only the row scale of `rows` */
+  activation?: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
+  inputVariance?: number;
   /** leaky-relu: its negative slope (the two scales 1 and |slope|, each on half the elements) */
   slope?: number;
   /**
@@ -50,6 +51,13 @@ export interface DerivativeMixture {
    * Gaussian (its gate gradient). relu and identity only with `of`: on their nonzero part both are the normal product
    */
   of?: "value" | "gate";
+  /**
+   * below a squared-error head of k ≤ 64 outputs: every element of a row (a sample, or a sample's position) is scaled
+   * by the row's residual norm, √(χ²_k/k) over its mean, times the activation's factor
+   */
+  rows?: number;
+  /** the rows per micro-batch whose scales `rows` draws (a step's typical draw has none below the 1/(count + 1) quantile) */
+  rowCount?: number;
 }
 
 /**

@@ -15,11 +15,15 @@ export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constan
 
 /** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
 export interface OpMixture {
-  activation: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
-  inputVariance: number;
+  activation?: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
+  inputVariance?: number;
   slope?: number;
   /** absent: δ·φ'(x); "value": δ·φ(x) (a gated product's up gradient); "gate": δ·u·φ'(x), u an independent Gaussian */
   of?: "value" | "gate";
+  /** the k of a squared-error head's row scale √(χ²_k/k), times whatever `activation` names (Gradient.rows) */
+  rows?: number;
+  /** the rows per micro-batch whose scales `rows` draws (a step's typical draw has none below the 1/(count + 1) quantile) */
+  rowCount?: number;
 }
 
 /** Tail family of a tensor's elements beyond its shape, for element maxima. */
@@ -208,6 +212,16 @@ export interface Gradient {
    * Curvature). A channel's homogeneous sum S holds its share, 1/channels, as a mean over draws
    */
   eulerSum?: number;
+  /**
+   * a squared-error head of k outputs per row (a sample, or a sample's position) scales every element of its row by the
+   * row's residual norm: once a transposed weight map has spread the row's k residuals over many features, each element
+   * is Gaussian given that norm, a scale mixture over √(χ²_k/k) (src/numeric/gated-mixture.ts rowMixture). `rowsPending`
+   * k where no such map has yet (the residuals themselves are i.i.d. Gaussian elements), `rows` k below one
+   */
+  rows?: number;
+  rowsPending?: number;
+  /** the rows per micro-batch (batch × positions at the loss) */
+  rowCount?: number;
   /**
    * set by a ReLU's backward rule on the gradient it passes down: the sample, position and cross (two samples at two
    * positions) correlations of the gradient before its gate. The layer just below (a norm whose output the ReLU gates) sums x·relu'(x)·b = relu(x)·b, whose

@@ -365,7 +365,7 @@ export function sameDistribution(a: MagnitudeProfile, b: MagnitudeProfile): bool
 
 /** Whether two profiles' scale mixtures are one (both absent, or the same activation, input variance and product). */
 function sameMixture(a: MagnitudeProfile["mixture"], b: MagnitudeProfile["mixture"]): boolean {
-  return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance && a.slope === b.slope && a.of === b.of);
+  return a === b || (a !== undefined && b !== undefined && a.activation === b.activation && a.inputVariance === b.inputVariance && a.slope === b.slope && a.of === b.of && a.rows === b.rows && a.rowCount === b.rowCount);
 }
 
 /** A copy of the profile with its scale multiplied by a factor (a loss scale, a per-tensor scale). */

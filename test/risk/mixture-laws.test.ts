@@ -36,6 +36,8 @@ const CASES: MixtureField[] = [];
 for (const activation of ["gelu", "silu", "tanh", "sigmoid", "softplus"] as const) for (const q of [0.25, 1, 4, 16]) CASES.push({ activation, inputVariance: q });
 for (const slope of [0.01, 0.2, -0.5, 1e-6]) CASES.push({ activation: "leaky-relu", inputVariance: 1, slope });
 for (const activation of ["gelu", "silu", "relu"] as const) for (const of of ["value", "gate"] as const) CASES.push({ activation, inputVariance: 2, of });
+// a squared-error head's row scale alone and times an activation's factor (src/numeric/gated-mixture.ts rowMixture)
+for (const rows of [1, 4]) CASES.push({ rows }, { rows, rowCount: 256 }, { activation: "gelu", inputVariance: 2, rows, rowCount: 128 });
 
 describe("the scale mixture laws against the plain sums over their components", () => {
   for (const field of CASES) {

@@ -51,7 +51,7 @@ export interface GatedStash {
 }
 
 // the gate activations whose value and derivative give scale mixtures (src/numeric/gated-mixture.ts): all but softmax
-function isMixtureActivation(name: GatedFeedForwardLayer["activation"]): name is OpMixture["activation"] {
+function isMixtureActivation(name: GatedFeedForwardLayer["activation"]): name is NonNullable<OpMixture["activation"]> {
   return name !== "softmax";
 }
 
