@@ -3,17 +3,16 @@ import { runSimulation } from "../../src/simulate/engine.js";
 import { parseSpec } from "../../src/spec/index.js";
 
 /**
- * An invented regressor with two hidden layers of width 256 under the activations given (YAML flow maps, named
- * `<kind>-1` and `<kind>-2` by the caller), a wide output (so the loss gradient stays close to Gaussian and what is
- * measured at the activations' inputs is their derivative's law), gradients held in e5m2 unscaled (plan
- * `eight-bit-gradients`).
+ * An invented regressor under a mean-squared-error loss with the layers given (YAML flow maps, one per line; `blocks`
+ * the YAML of a blocks section when they use one), gradients held in e5m2 unscaled (plan `eight-bit-gradients`) and
+ * everything else in binary32.
  */
-export function twoLayerRegressor(name: string, hidden: readonly [string, string]): string {
+export function eightBitRegressor(name: string, batch: number, layers: readonly string[], options: { features?: number; targetScale?: number; blocks?: string } = {}): string {
   return `name: ${name}
-input: { features: 128, scale: 1.0 }
+input: { features: ${options.features ?? 128}, scale: 1.0 }
 training:
-  batch: 256
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
+  batch: ${batch}
+  loss: { kind: mean-squared-error, reduction: mean, target-scale: ${options.targetScale ?? "1.0"} }
   optimizer: { kind: sgd, learning-rate: 0.01 }
 precision:
   name: eight-bit-gradients
@@ -24,13 +23,24 @@ precision:
   master-weights: binary32
   accumulate: binary32
   scaling: none
-layers:
-  - { type: dense, name: wide-1, width: 256, init: he-normal }
-  - ${hidden[0]}
-  - { type: dense, name: wide-2, width: 256, init: he-normal }
-  - ${hidden[1]}
-  - { type: dense, name: out, width: 128, init: glorot-normal }
+${options.blocks ?? ""}layers:
+${layers.map((layer) => `  - ${layer}`).join("\n")}
 `;
+}
+
+/**
+ * An invented regressor with two hidden layers of width 256 under the activations given (YAML flow maps, named
+ * `<kind>-1` and `<kind>-2` by the caller), a wide output (so the loss gradient stays close to Gaussian and what is
+ * measured at the activations' inputs is their derivative's law), batch 256 (eightBitRegressor).
+ */
+export function twoLayerRegressor(name: string, hidden: readonly [string, string]): string {
+  return eightBitRegressor(name, 256, [
+    "{ type: dense, name: wide-1, width: 256, init: he-normal }",
+    hidden[0],
+    "{ type: dense, name: wide-2, width: 256, init: he-normal }",
+    hidden[1],
+    "{ type: dense, name: out, width: 128, init: glorot-normal }",
+  ]);
 }
 
 /** One tensor's e5m2 flushed share at one loss scale: check's prediction at the start and the simulation's median. */

@@ -1,5 +1,3 @@
-import { f16round } from "@petamoriken/float16";
-
 // Smooth activations written from their definitions, independent of src/numeric, for Monte Carlo checks of the laws.
 
 /** Φ by the Abramowitz & Stegun 7.1.26 erf approximation (|error| < 1.5e-7). */
@@ -17,9 +15,3 @@ export const SMOOTH = {
   gelu: { f: (x: number) => x * Phi(x), df: (x: number) => Phi(x) + (x * Math.exp((-x * x) / 2)) / Math.sqrt(2 * Math.PI) },
   silu: { f: (x: number) => x * sigma(x), df: (x: number) => sigma(x) * (1 + x * (1 - sigma(x))) },
 };
-
-// e5m2 rounds |x| ≤ 2^−17 (half its smallest subnormal 2^−16) to zero (OCP 8-bit floating point spec, 2023, Table 1;
-// ties to the even zero); binary16 by @petamoriken/float16's f16round (IEEE 754-2019 binary16, round to nearest even)
-export const E5M2_FLUSH = 2 ** -17;
-export const flushesE5m2 = (y: number): boolean => Math.abs(y) <= E5M2_FLUSH;
-export const flushesBinary16 = (y: number): boolean => f16round(y) === 0;

@@ -4,6 +4,7 @@ import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { parseSpec } from "../../src/spec/index.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
+import { SMOOTH } from "../helpers/smooth-activations.js";
 
 // Gradients behind an activation whose derivative crosses zero hold more values near zero than a Gaussian of the
 // same rms. At an activation layer's input the prediction models them as a scale mixture and says so; so it does for a
@@ -22,23 +23,14 @@ function note(spec: NetworkSpec, start = "Gradients behind"): string | undefined
   return predict(built.graph, spec).assumptions.find((a) => a.startsWith(start));
 }
 
-// Φ by the Abramowitz & Stegun 7.1.26 erf approximation (|error| < 1.5e-7), independent of src/numeric
-function Phi(x: number): number {
-  const z = Math.abs(x) / Math.SQRT2;
-  const t = 1 / (1 + 0.3275911 * z);
-  const erf = 1 - (((((1.061405429 * t - 1.453152027) * t + 1.421413741) * t - 0.284496736) * t + 0.254829592) * t) * Math.exp(-z * z);
-  return x >= 0 ? (1 + erf) / 2 : (1 - erf) / 2;
-}
-
 describe("the note on activations whose derivative crosses zero", () => {
   it("the derivatives do cross zero: GELU' near −0.75, SiLU' near −1.28", () => {
-    // GELU(x) = x·Φ(x) (Hendrycks & Gimpel 2016), so GELU'(x) = Φ(x) + x·φ(x)
-    const gelu = (x: number) => Phi(x) + (x * Math.exp(-x * x / 2)) / Math.sqrt(2 * Math.PI);
+    // GELU(x) = x·Φ(x) (Hendrycks & Gimpel 2016), so GELU'(x) = Φ(x) + x·φ(x) (test/helpers/smooth-activations.ts)
+    const gelu = SMOOTH.gelu.df;
     expect(gelu(-0.76)).toBeLessThan(0);
     expect(gelu(-0.74)).toBeGreaterThan(0);
     // SiLU(x) = x·σ(x) (Elfwing et al. 2018), so SiLU'(x) = σ(x)·(1 + x·(1 − σ(x)))
-    const sigma = (x: number) => 1 / (1 + Math.exp(-x));
-    const silu = (x: number) => sigma(x) * (1 + x * (1 - sigma(x)));
+    const silu = SMOOTH.silu.df;
     expect(silu(-1.28)).toBeLessThan(0);
     expect(silu(-1.27)).toBeGreaterThan(0);
   });

@@ -1,34 +1,24 @@
 import { describe, expect, it } from "vitest";
 import type { MagnitudeProfile } from "../../src/magnitude/types.js";
-import { createRandom } from "../../src/numeric/random.js";
-import { energyBelow, fractionBelow, probabilityAnyAbove } from "../../src/risk/profile.js";
+import { fractionBelow } from "../../src/risk/profile.js";
 import { check } from "../../src/check.js";
 import { runSimulation } from "../../src/simulate/engine.js";
 import { parseSpec } from "../../src/spec/index.js";
-import { E5M2_FLUSH, flushesBinary16, flushesE5m2 } from "../helpers/smooth-activations.js";
+import { drawSample, expectEnergyAndTailLikeSample, expectFlushedLikeSample, type Sample } from "../helpers/mixture-monte-carlo.js";
+import { eightBitRegressor } from "../helpers/flushed-against-simulation.js";
 
 // Below a squared-error head of k outputs, every element of a row's gradient is Σ_j a_ij·r_j for the row's k residuals
 // r: given r, Gaussian with variance ‖r‖²·E[a²], so over the rows a scale mixture over ‖r‖/√k ~ √(χ²_k/k). At k = 1 that
 // is the normal product law, whose density grows like −ln|x| at 0 (Craig 1936): far more of it flushes than a Gaussian
 // of its rms. The law is held to a seeded Monte Carlo of the product, and small regressors' check to the simulation.
 
-interface Sample {
-  values: Float64Array;
-  rms: number;
-}
 // z·√(χ²_k/k) with z ~ N(0, 1), the chi-square drawn as a sum of k squared normals (its definition), seeded
 function sample(k: number, count: number, seed: number): Sample {
-  const random = createRandom(seed);
-  const values = new Float64Array(count);
-  let square = 0;
-  for (let i = 0; i < count; i++) {
+  return drawSample(count, seed, (random) => {
     let chi = 0;
     for (let j = 0; j < k; j++) chi += random.normal() ** 2;
-    const y = random.normal() * Math.sqrt(chi / k);
-    values[i] = y;
-    square += y * y;
-  }
-  return { values, rms: Math.sqrt(square / count) };
+    return random.normal() * Math.sqrt(chi / k);
+  });
 }
 
 function profile(k: number, rms: number): MagnitudeProfile {
@@ -45,36 +35,12 @@ describe("the row scale of a squared-error head as a scale mixture", () => {
     const drawn = sample(k, COUNT, seed);
     for (const a of [1e-3, 3e-2]) {
       it(`k = ${k}: the share flushed in e5m2 and in binary16 at ${a} of the rms agrees with a Monte Carlo`, () => {
-        for (const [bound, flushes] of [
-          [E5M2_FLUSH, flushesE5m2],
-          [2 ** -25, flushesBinary16],
-        ] as const) {
-          const factor = bound / a / drawn.rms;
-          let flushed = 0;
-          for (const y of drawn.values) if (flushes(y * factor)) flushed++;
-          const measured = flushed / COUNT;
-          const predicted = fractionBelow(profile(k, drawn.rms * factor), bound);
-          // 6% for the bins (src/numeric/gated-mixture.ts rowMixture) and 4 standard errors of the count
-          expect(Math.abs(predicted - measured), `${bound}: ${predicted} against ${measured}`).toBeLessThan(0.06 * measured + 4 * Math.sqrt(measured / COUNT));
-        }
+        // 6% for the bins (src/numeric/gated-mixture.ts rowMixture) and 4 standard errors of the count
+        expectFlushedLikeSample(drawn, a, (rms) => profile(k, rms), 0.06);
       });
     }
     it(`k = ${k}: the energy below and the tail above a threshold agree with the Monte Carlo`, () => {
-      let square = 0;
-      let below = 0;
-      let above = 0;
-      const low = 0.05 * drawn.rms;
-      const high = 3 * drawn.rms;
-      for (const y of drawn.values) {
-        square += y * y;
-        if (Math.abs(y) <= low) below += y * y;
-        if (Math.abs(y) >= high) above++;
-      }
-      const p = profile(k, drawn.rms);
-      const energy = below / square;
-      expect(Math.abs(energyBelow(p, low) - energy) / energy).toBeLessThan(0.08);
-      const tail = above / COUNT;
-      expect(Math.abs(probabilityAnyAbove(p, high) - tail)).toBeLessThan(0.06 * tail + 4 * Math.sqrt(tail / COUNT));
+      expectEnergyAndTailLikeSample(drawn, profile(k, drawn.rms), 0.08, 0.06);
     });
   }
   it("k = 1: five times the flushed share of a Gaussian of the same rms at 1e-3 of it", () => {
@@ -90,53 +56,20 @@ describe("the row scale of a squared-error head as a scale mixture", () => {
 // Invented regressors for a reed bed's water-level gauges (k outputs) and a soil probe (one output, GELU and layer
 // norms), gradients held in e5m2 unscaled
 function reed(k: number): string {
-  return `name: reed-${k}
-input: { features: 128, scale: 1.0 }
-training:
-  batch: 256
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 1.0 }
-  optimizer: { kind: sgd, learning-rate: 0.01 }
-precision:
-  name: eight-bit-gradients
-  activations: binary32
-  weights: binary32
-  gradients: e5m2
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-  scaling: none
-layers:
-  - { type: dense, name: wide-1, width: 256, init: he-normal }
-  - { type: relu, name: act-1 }
-  - { type: dense, name: wide-2, width: 256, init: he-normal }
-  - { type: relu, name: act-2 }
-  - { type: dense, name: out, width: ${k}, init: glorot-normal }
-`;
+  return eightBitRegressor(`reed-${k}`, 256, [
+    "{ type: dense, name: wide-1, width: 256, init: he-normal }",
+    "{ type: relu, name: act-1 }",
+    "{ type: dense, name: wide-2, width: 256, init: he-normal }",
+    "{ type: relu, name: act-2 }",
+    `{ type: dense, name: out, width: ${k}, init: glorot-normal }`,
+  ]);
 }
-const SOIL = `name: soil-probe
-input: { features: 64, scale: 1.0 }
-training:
-  batch: 128
-  loss: { kind: mean-squared-error, reduction: mean, target-scale: 0.3 }
-  optimizer: { kind: sgd, learning-rate: 0.01 }
-precision:
-  name: eight-bit-gradients
-  activations: binary32
-  weights: binary32
-  gradients: e5m2
-  optimizer-states: binary32
-  master-weights: binary32
-  accumulate: binary32
-  scaling: none
-blocks:
-  unit:
-    - { type: dense, width: 256, init: he-normal }
-    - gelu
-    - layer-norm
-layers:
-  - { type: repeat, name: body, times: 4, layers: [ { type: use, block: unit } ] }
-  - { type: dense, name: out, width: 1, init: glorot-normal }
-`;
+const SOIL = eightBitRegressor(
+  "soil-probe",
+  128,
+  ["{ type: repeat, name: body, times: 4, layers: [ { type: use, block: unit } ] }", "{ type: dense, name: out, width: 1, init: glorot-normal }"],
+  { features: 64, targetScale: 0.3, blocks: "blocks:\n  unit:\n    - { type: dense, width: 256, init: he-normal }\n    - gelu\n    - layer-norm\n" },
+);
 
 // check's e5m2 flushed share of each tensor against what the simulation loses of its nonzero elements: flushed when
 // stored, or already zero from an upstream rounding (a row whose gradient an earlier tensor flushed arrives as zeros),
