@@ -823,13 +823,21 @@ function assumptions(spec: NetworkSpec, graph: Graph): string[] {
     "rms is that of the nonzero elements at the median draw; the JSON's meanSquare is the mean-field second moment over all elements.",
     "Biases start at zero and, by the end of the horizon, are taken to have drifted by (weight growth − 1) × the layer's initial weight rms.",
   ];
-  const mixed = zeroCrossingActivations(spec);
+  const mixed = mixtureActivations(spec);
   if (mixed.length > 0) {
     // δ·φ'(x) given x is N(0, s²φ'(x)²): a Gaussian scale mixture over |φ'(x)| (gradient independence, Schoenholz et al.
     // 2017; src/numeric/derivative-mixture.ts)
+    const crossing = mixed.filter((name) => name === "GELU" || name === "SiLU");
+    const fading = mixed.filter((name) => name !== "GELU" && name !== "SiLU");
+    // each kind named where both are present
+    const both = crossing.length > 0 && fading.length > 0;
+    const why = [
+      crossing.length > 0 ? `crosses zero${both ? ` (${crossing.join(", ")})` : ""}` : "",
+      fading.length > 0 ? `fades in a saturated tail${both ? ` (${fading.join(", ")})` : ""}` : "",
+    ].filter((part) => part !== "");
     list.push(
-      `Gradients at the input of ${mixed.join(" and ")} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
-        "(a scale mixture): the derivative crosses zero, so they hold more values near zero than a Gaussian of the same rms.",
+      `Gradients at the input of ${listed(mixed)} layers are taken as Gaussian elements scaled by |φ'(x)| of a Gaussian pre-activation x ` +
+        `(a scale mixture): the derivative ${why.join(" or ")}, so they hold more values near zero than a Gaussian of the same rms.`,
     );
   }
   const head = graph.output.layout === "features" ? graph.output.features : graph.output.layout === "image" ? graph.output.channels : 1;
@@ -889,10 +897,18 @@ function activationsOf(spec: NetworkSpec, family: "activation" | "gated-feed-for
   return found;
 }
 
-// the activation layers whose derivative crosses zero (GELU, SiLU), as the assumptions name them
-function zeroCrossingActivations(spec: NetworkSpec): string[] {
+// the activation layers whose input gradient is a scale mixture over |φ'| (src/ops/activation/analytic.ts), as the
+// assumptions name them: GELU and SiLU, whose derivative crosses zero, then tanh, sigmoid and softplus, whose derivative
+// fades in a saturated tail
+function mixtureActivations(spec: NetworkSpec): string[] {
   const found = activationsOf(spec, "activation");
-  return ["gelu", "silu"].filter((name) => found.has(name)).map((name) => (name === "gelu" ? "GELU" : "SiLU"));
+  const names: Record<string, string> = { gelu: "GELU", silu: "SiLU", tanh: "tanh", sigmoid: "sigmoid", softplus: "softplus" };
+  return Object.keys(names).filter((name) => found.has(name)).map((name) => names[name] as string);
+}
+
+// "a", "a and b", "a, b and c"
+function listed(names: readonly string[]): string {
+  return names.length < 2 ? names.join("") : `${names.slice(0, -1).join(", ")} and ${names[names.length - 1] as string}`;
 }
 
 /**

@@ -14,8 +14,8 @@ import { erf, erfc, normalCdf } from "./normal.js";
  * The activations whose derivative has a scale mixture here: the smooth ones, whose derivative is not constant. Their
  * flushed share differs from a Gaussian's of the same rms by 1.0–1.5x at q = 0.25 but 2.6–140x at q = 4 (tanh most,
  * then softplus and sigmoid; a seeded Monte Carlo of δ·φ'(x), test/risk/derivative-mixture.test.ts). The magnitude
- * engine makes it for GELU and SiLU only (src/ops/activation/analytic.ts), and for a leaky ReLU, whose derivative
- * takes two values (exactly two components)
+ * engine makes it for each of them (src/ops/activation/analytic.ts), and for a leaky ReLU, whose derivative takes two
+ * values (exactly two components)
  */
 export type MixtureActivation = Extract<ActivationName, "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu">;
 

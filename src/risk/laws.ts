@@ -145,7 +145,7 @@ function logNormalLaw(s: number): ElementLaw {
   };
 }
 
-// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a GELU, SiLU or leaky ReLU or a gated
+// A Gaussian scale mixture (shape "gaussian-mixture", the gradient behind a smooth activation or a leaky ReLU, or a gated
 // product's): P(|x| ≤ t) = Σ wᵢ·P(|Z| ≤ t/(r·cᵢ)), and the energy below t Σ wᵢcᵢ²·(the Gaussian's at r·cᵢ), as Σ wᵢcᵢ² = 1 (a mixture's law is the
 // weighted sum of its components' laws; src/numeric/derivative-mixture.ts).
 // The scales fall with i, so t/(r·cᵢ) rises. Three parts, so that a call costs a binary search, one series and the few

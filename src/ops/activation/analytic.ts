@@ -442,17 +442,16 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     curvature: undefined,
   };
   // δ·φ'(x) with a Gaussian δ independent of x ~ N(0, q) is a Gaussian scale mixture over |φ'(x)| (gradient
-  // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero, so it holds far more values near zero than a
-  // Gaussian of its rms (src/numeric/derivative-mixture.ts). tanh', sigmoid' and softplus' fade in their saturated
-  // tails instead (their shares 1.0-1.1x a Gaussian's at q = 0.25, up to 2.9x at q = 1 and 140x at q = 4, measured),
-  // but the mixture made a deep tanh stack's check 4x slower: left Gaussian for now. Zeros in the input or a pool's or batch norm's gate change
-  // the law of φ': left Gaussian there
+  // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero and tanh', sigmoid' and softplus' fade in their
+  // saturated tails, so it holds more values near zero than a Gaussian of its rms (flushed shares up to 2.9x a
+  // Gaussian's at q = 1 and 140x at q = 4, tanh most: a seeded Monte Carlo, src/numeric/derivative-mixture.ts). Zeros in the
+  // input or a pool's or batch norm's gate change the law of φ': left Gaussian there
   const input = stash.input;
   const mixes = output.shape === "gaussian" && k === undefined && output.channelGate === undefined && input.zeroFraction === 0 && input.q > 0;
   // a leaky ReLU's φ' is 1 or the slope on either half of a zero-mean x: exactly two Gaussians, half the elements each,
   // |slope| apart in scale (slope 0.01: half the elements 6.6 binades below the rest, which a Gaussian would not flush)
   const a = stash.slope ?? 0;
-  if (mixes && (name === "gelu" || name === "silu")) {
+  if (mixes && (name === "gelu" || name === "silu" || name === "tanh" || name === "sigmoid" || name === "softplus")) {
     gradient.shape = "gaussian-mixture";
     gradient.mixture = { activation: name, inputVariance: input.q };
   } else if (mixes && name === "leaky-relu" && a !== 0 && Math.abs(a) !== 1 && input.gaussian && Math.abs(input.mean) < 1e-12) {
