@@ -37,7 +37,7 @@ describe("a width-1 output layer's finite-width spread over a batch", () => {
     // the weight and bias gradients sum the batch's shared part, whose spread keeps the full 2/width (one Gaussian
     // per unit, w·x̄): up to 0.49 binade off before (the first layer's weights), 0.22 after
     for (const [id, value] of d) expect(Math.abs(value), `${id}: ${value.toFixed(2)}`).toBeLessThan(0.3);
-  });
+  }, 180_000); // 201 simulated draws: ~25 s alone, past 60 s on a loaded 2-core machine
 
   it("no spurious loss-value hazard: a summed loss of a one-output regressor is not at risk in binary16", () => {
     // with loss scale 1, the summed loss (256 terms) overflows binary16 only when a term is 2^9 above its median; the
