@@ -4,6 +4,7 @@
  * Everything here is plain JSON-able data.
  */
 import type { LayerFamily } from "../spec/types.js";
+import type { MixtureField } from "../numeric/gated-mixture.js";
 
 /** What a tensor is, in one training step (DESIGN.md vocabulary). */
 export const TENSOR_ROLES = [
@@ -36,29 +37,11 @@ export type PlanSlot = "activations" | "weights" | "gradients" | "optimizerState
 export type ElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal" | "gaussian-mixture";
 
 /**
- * The scale mixture of a "gaussian-mixture" profile: the gradient behind `activation`, whose input x ~ N(0,
- * inputVariance); the element's scale is |φ'(x)| over its rms (the components: src/numeric/derivative-mixture.ts), or
- * as `of` says for a gated product's gradients (src/numeric/gated-mixture.ts)
+ * The scale mixture of a "gaussian-mixture" profile: the element's scale is |φ'(x)| of the activation's Gaussian input
+ * over its rms (src/numeric/derivative-mixture.ts), or as `of` and `rows` say (src/numeric/gated-mixture.ts, where the
+ * fields are described)
  */
-export interface DerivativeMixture {
-  /** absent: no activation factor, only the row scale of `rows` */
-  activation?: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
-  inputVariance?: number;
-  /** leaky-relu: its negative slope (the two scales 1 and |slope|, each on half the elements) */
-  slope?: number;
-  /**
-   * absent: the scale is |φ'(x)|; "value": |φ(x)| (a gated product's up gradient); "gate": |u·φ'(x)|, u an independent
-   * Gaussian (its gate gradient). relu and identity only with `of`: on their nonzero part both are the normal product
-   */
-  of?: "value" | "gate";
-  /**
-   * below a squared-error head of k ≤ 64 outputs: every element of a row (a sample, or a sample's position) is scaled
-   * by the row's residual norm, √(χ²_k/k) over its mean, times the activation's factor
-   */
-  rows?: number;
-  /** the rows per micro-batch whose scales `rows` draws (a step's typical draw has none below the 1/(count + 1) quantile) */
-  rowCount?: number;
-}
+export type DerivativeMixture = MixtureField;
 
 /**
  * The predicted distribution of a tensor's element magnitudes (DESIGN.md: magnitude profile).

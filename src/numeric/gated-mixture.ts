@@ -20,16 +20,28 @@ import { upperGammaQ } from "./chi-square.js";
 export type MixtureOf = "value" | "gate";
 
 /**
- * A profile's mixture field (src/magnitude/types.ts DerivativeMixture; src/ops/types.ts OpMixture). relu and identity
- * name only a gated product's gradients: on a ReLU gate's nonzero part (g > 0) and on an identity gate, δ·φ(g) is δ·|g|
- * and δ·u·φ'(g) is δ·u, both the normal product law.
+ * A profile's mixture field, the one layout of src/magnitude/types.ts DerivativeMixture and src/ops/types.ts OpMixture:
+ * the gradient behind `activation`, whose input x ~ N(0, inputVariance). relu and identity name only a gated product's
+ * gradients: on a ReLU gate's nonzero part (g > 0) and on an identity gate, δ·φ(g) is δ·|g| and δ·u·φ'(g) is δ·u, both
+ * the normal product law.
  */
 export interface MixtureField {
+  /** absent: no activation factor, only the row scale of `rows` */
   activation?: MixtureActivation | "relu" | "identity";
   inputVariance?: number;
+  /** leaky-relu: its negative slope (the two scales 1 and |slope|, each on half the elements) */
   slope?: number;
+  /**
+   * absent: the scale is |φ'(x)|; "value": |φ(x)| (a gated product's up gradient); "gate": |u·φ'(x)|, u an independent
+   * Gaussian (its gate gradient)
+   */
   of?: MixtureOf;
+  /**
+   * below a squared-error head of k ≤ 64 outputs: every element of a row (a sample, or a sample's position) is scaled
+   * by the row's residual norm, √(χ²_k/k) over its mean, times the activation's factor (Gradient.rows)
+   */
   rows?: number;
+  /** the rows per micro-batch whose scales `rows` draws (a step's typical draw has none below the 1/(count + 1) quantile) */
   rowCount?: number;
 }
 

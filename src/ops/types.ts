@@ -9,22 +9,13 @@
  */
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
 import type { ActivationName } from "../spec/types.js";
+import type { MixtureField } from "../numeric/gated-mixture.js";
 
 /** Same strings as ElementShape in src/magnitude/types.ts (ops may not import magnitude). */
 export type OpElementShape = "gaussian" | "half-gaussian" | "uniform" | "constant" | "bounded" | "log-normal" | "gaussian-mixture";
 
-/** Same fields as DerivativeMixture in src/magnitude/types.ts: the gradient δ·φ'(x) behind an activation, x ~ N(0, inputVariance). */
-export interface OpMixture {
-  activation?: "gelu" | "silu" | "tanh" | "sigmoid" | "softplus" | "leaky-relu" | "relu" | "identity";
-  inputVariance?: number;
-  slope?: number;
-  /** absent: δ·φ'(x); "value": δ·φ(x) (a gated product's up gradient); "gate": δ·u·φ'(x), u an independent Gaussian */
-  of?: "value" | "gate";
-  /** the k of a squared-error head's row scale √(χ²_k/k), times whatever `activation` names (Gradient.rows) */
-  rows?: number;
-  /** the rows per micro-batch whose scales `rows` draws (a step's typical draw has none below the 1/(count + 1) quantile) */
-  rowCount?: number;
-}
+/** A "gaussian-mixture" gradient's mixture: DerivativeMixture of src/magnitude/types.ts, one layout (src/numeric/gated-mixture.ts). */
+export type OpMixture = MixtureField;
 
 /** Tail family of a tensor's elements beyond its shape, for element maxima. */
 export type TailKind = "gaussian" | "product";
