@@ -4,7 +4,7 @@
  */
 import { maxOfNormals } from "../ops/pool/analytic.js";
 import type { OpElementShape, OpMixture, TailKind } from "../ops/types.js";
-import { mixtureShareAbove } from "../numeric/derivative-mixture.js";
+import { mixtureShareAbove, type ScaleMixture } from "../numeric/derivative-mixture.js";
 import { fieldMixture } from "../numeric/gated-mixture.js";
 import { erfc } from "../numeric/normal.js";
 import { bisectDecreasing } from "../numeric/bisection.js";
@@ -124,12 +124,27 @@ const MAX_BISECTION = { maxSteps: 60, absTol: 0, relTol: 1e-10 };
  */
 function mixtureMax(mixture: OpMixture, n: number): number {
   const law = fieldMixture(mixture);
+  let byCount = MIXTURE_MAX.get(law);
+  if (byCount === undefined) MIXTURE_MAX.set(law, (byCount = new Map()));
+  const known = byCount.get(n);
+  if (known !== undefined) return known;
   const g = gaussianMaxOf(n);
   const target = erfc(g / Math.SQRT2);
   // the scales fall along the components: the first is the widest; the search starts at that end, a quarter of it wide
   const widest = g * (law.scales[0] as number);
-  return bisectDecreasing((m) => mixtureShareAbove(law, m), target, 0, widest, MAX_BISECTION, widest, widest / 4);
+  const max = bisectDecreasing((m) => mixtureShareAbove(law, m), target, 0, widest, MAX_BISECTION, widest, widest / 4);
+  if (byCount.size >= MIXTURE_MAX_COUNTS) byCount.clear();
+  byCount.set(n, max);
+  return max;
 }
+
+/**
+ * mixtureMax by law and element count: fieldMixture gives one law object per field, and a network's layers share a
+ * few of each (a residual stack's every gradient below a narrow head: 642 profiles, 2 laws and counts), while each
+ * bisection sums the law ~40 times. The stored value is the function's own, so results do not change.
+ */
+const MIXTURE_MAX = new WeakMap<ScaleMixture, Map<number, number>>();
+const MIXTURE_MAX_COUNTS = 64;
 
 /** Expected largest element magnitude of n nonzero elements (the fields of the moments it reads, passed one by one). */
 function maxElementOf(
@@ -181,11 +196,27 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
   const shape = m.shape;
   if (rows !== undefined && (shape === "gaussian" || shape === "gaussian-mixture")) {
     const rowCount = m.rowCount;
-    const mixture = shape === "gaussian-mixture" && m.mixture !== undefined ? { ...m.mixture, rows, rowCount } : { rows, rowCount };
+    const mixture = rowScaled(shape === "gaussian-mixture" ? m.mixture : undefined, rows, rowCount);
     return profileFrom(m.q, m.zeroFraction, "gaussian-mixture", m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, mixture);
   }
   return profileFrom(m.q, m.zeroFraction, shape, m.logVar, m.bound, m.elementLog2Spread, m.tail, m.shared, m.positionCorrelation, elements, m.mixture);
 }
+
+/**
+ * The mixture field of a row-scaled profile: `base` (an activation's factor, or none) with the row scale, one object per
+ * base and row scale, so the risk laws' cache by field object finds it again (a new object per profile built the laws'
+ * memo key once per profile). Nothing writes a profile's mixture field.
+ */
+function rowScaled(base: OpMixture | undefined, rows: number, rowCount: number | undefined): OpMixture {
+  const slot = base ?? ROW_SCALED_ALONE;
+  const known = ROW_SCALED.get(slot);
+  if (known !== undefined && known.rows === rows && known.rowCount === rowCount) return known;
+  const made: OpMixture = base !== undefined ? { ...base, rows, rowCount } : { rows, rowCount };
+  ROW_SCALED.set(slot, made);
+  return made;
+}
+const ROW_SCALED = new WeakMap<object, OpMixture>();
+const ROW_SCALED_ALONE = {};
 
 /**
  * {@link profileOf} for moments with no bound, element spread, tail or shared parts (weights, weight gradients and
