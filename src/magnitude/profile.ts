@@ -203,20 +203,21 @@ export function profileOf(m: Moments, elements: number): MagnitudeProfile {
 }
 
 /**
- * The mixture field of a row-scaled profile: `base` (an activation's factor, or none) with the row scale, one object per
- * base and row scale, so the risk laws' cache by field object finds it again (a new object per profile built the laws'
- * memo key once per profile). Nothing writes a profile's mixture field.
+ * The mixture field of a row-scaled profile: `base` (an activation's factor, or none) with the row scale, the same object
+ * as the last call's for the same base and row scale (a gradient's profiles come one after another, and every gradient
+ * of a stack without activation factors has the same field), so the risk laws' cache by field object finds it again: a
+ * new object per profile built the laws' memo key once per profile. Nothing writes a profile's mixture field.
  */
 function rowScaled(base: OpMixture | undefined, rows: number, rowCount: number | undefined): OpMixture {
-  const slot = base ?? ROW_SCALED_ALONE;
-  const known = ROW_SCALED.get(slot);
-  if (known !== undefined && known.rows === rows && known.rowCount === rowCount) return known;
-  const made: OpMixture = base !== undefined ? { ...base, rows, rowCount } : { rows, rowCount };
-  ROW_SCALED.set(slot, made);
-  return made;
+  const last = lastRowScaled;
+  if (last !== undefined && last.base === base && last.field.rows === rows && last.field.rowCount === rowCount) return last.field;
+  // every key in the base's own order (JSON leaves the undefined ones out): one object layout, where a spread made one per base
+  const field: OpMixture =
+    base !== undefined ? { activation: base.activation, inputVariance: base.inputVariance, slope: base.slope, of: base.of, rows, rowCount } : { rows, rowCount };
+  lastRowScaled = { base, field };
+  return field;
 }
-const ROW_SCALED = new WeakMap<object, OpMixture>();
-const ROW_SCALED_ALONE = {};
+let lastRowScaled: { base: OpMixture | undefined; field: OpMixture } | undefined;
 
 /**
  * {@link profileOf} for moments with no bound, element spread, tail or shared parts (weights, weight gradients and
