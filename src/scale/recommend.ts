@@ -179,7 +179,10 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   let levels = LEVEL_TABLES.get(shared);
   if (levels === undefined) LEVEL_TABLES.set(shared, (levels = new ShiftLevelTable(shared.length)));
   const table = levels;
-  return curvePartsOf(shared, limits, (p, edgeGuessesLog2, i) => new BoundedCurves(p, edgeGuessesLog2, limits, table, i));
+  // each tensor's bounds at the exponent last asked, for this format: one typed array for all the tensors
+  const memo = new Float64Array(MEMO_FIELDS * shared.length);
+  for (let at = 0; at < memo.length; at += MEMO_FIELDS) memo.set(MEMO_START, at);
+  return curvePartsOf(shared, limits, (p, edgeGuessesLog2, i) => new BoundedCurves(p, edgeGuessesLog2, limits, table, i, memo));
 }
 
 /**
@@ -209,25 +212,35 @@ class ShiftLevelTable {
 // each set of gradient profiles' level table (an answer's profiles serve several formats)
 const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
 
+// What a BoundedCurves keeps of the exponent last asked, at these offsets of its tensor's place in one typed array of
+// all the tensors of a format (numbers kept on each object would be a boxed double each, for the collector to copy
+// for as long as the answer lives): each profile's upper bound and the moment bounds' lower end (NaN where the law has
+// none, src/scale/overflow-enclosure.ts) at OVERFLOW_K, the flushed shares' upper bounds at FLUSH_K, and the shifted
+// tails' lower bound at ROUGH_K (overflowRiskRoughLower).
+const OVERFLOW_K = 0;
+const OVERFLOW_START = 1;
+const OVERFLOW_END = 2;
+const OVERFLOW_START_LOW = 3;
+const OVERFLOW_END_LOW = 4;
+const FLUSH_K = 5;
+const FLUSH_START = 6;
+const FLUSH_END = 7;
+const ROUGH_K = 8;
+const ROUGH_LOW = 9;
+const MEMO_FIELDS = 10;
+// nothing asked yet
+const MEMO_START = Float64Array.of(NaN, 1, 1, NaN, NaN, NaN, 1, 1, NaN, 0);
+// roughOf's lower bound of the profile it last bounded (read at once by its caller)
+let roughLowOf = 0;
+
 // One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
 // them, not one more per tensor and format), and each profile's segment upper bounds at the exponent last asked (the
-// window asks for a tensor's bound and then its value at one exponent; it keeps both itself, src/scale/window.ts). One
-// object per tensor, its methods shared.
+// window asks for a tensor's bound and then its value at one exponent; it keeps both itself, src/scale/window.ts), kept
+// in the format's memo array. One object per tensor, its methods shared.
 class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   readonly flushedEnergyGrowth: number | undefined;
-  private overflowK = NaN;
-  private overflowStart = 1;
-  private overflowEnd = 1;
-  // the moment bounds' lower ends at overflowK (NaN where the law has none: src/scale/overflow-enclosure.ts)
-  private overflowStartLow = NaN;
-  private overflowEndLow = NaN;
-  private flushK = NaN;
-  private flushStart = 1;
-  private flushEnd = 1;
-  // the shifted tails' lower bound at roughK (overflowRiskRoughLower), and roughOf's last profile's
-  private roughK = NaN;
-  private roughLow = 0;
-  private roughLowOf = 0;
+  // this tensor's offset in `memo`
+  private readonly m: number;
 
   constructor(
     profiles: GradientProfiles,
@@ -236,29 +249,33 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     // the shifted tails' levels of the start's count at 6·index … + 2 and the end's at + 3 … + 5 (ShiftLevelTable)
     private readonly levels: ShiftLevelTable,
     private readonly index: number,
+    private readonly memo: Float64Array,
   ) {
     super(profiles, edgeGuessesLog2, limits);
+    this.m = MEMO_FIELDS * index;
     this.flushedEnergyGrowth = growsAtMostEightfold(this.start) && growsAtMostEightfold(this.end) ? FLUSH_GROWTH : undefined;
   }
 
   // each profile's upper bound at k: the moment bounds where the law has them (both ends kept), else the segment bound
   private overflowUppers(k: number): void {
-    if (k === this.overflowK) return;
+    const memo = this.memo;
+    const m = this.m;
+    if (k === memo[m + OVERFLOW_K]) return;
     const t = this.limits.overflowLevel * 2 ** -k;
     const base = this.levelsAt();
     const levels = this.levels.levels;
     boundsOf(this.start, t, PAIR, levels, base);
-    this.overflowStart = PAIR[1] as number;
-    this.overflowStartLow = PAIR[0] as number;
+    memo[m + OVERFLOW_START] = PAIR[1]!;
+    memo[m + OVERFLOW_START_LOW] = PAIR[0]!;
     if (this.same) {
-      this.overflowEnd = this.overflowStart;
-      this.overflowEndLow = this.overflowStartLow;
+      memo[m + OVERFLOW_END] = memo[m + OVERFLOW_START]!;
+      memo[m + OVERFLOW_END_LOW] = memo[m + OVERFLOW_START_LOW]!;
     } else {
       boundsOf(this.end, t, PAIR, levels, base + 3);
-      this.overflowEnd = PAIR[1] as number;
-      this.overflowEndLow = PAIR[0] as number;
+      memo[m + OVERFLOW_END] = PAIR[1]!;
+      memo[m + OVERFLOW_END_LOW] = PAIR[0]!;
     }
-    this.overflowK = k;
+    memo[m + OVERFLOW_K] = k;
   }
 
   private levelsAt(): number {
@@ -272,43 +289,47 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   overflowRiskRough(k: number): number {
     const t = this.limits.overflowLevel * 2 ** -k;
     const a = this.roughOf(this.start, t, 0);
-    const low = this.roughLowOf;
+    const low = roughLowOf;
+    const memo = this.memo;
+    const m = this.m;
     if (a < 1 && !this.same) {
       const b = this.roughOf(this.end, t, 3);
       // the worse of two values is at least either's lower bound
-      this.roughLow = Math.max(low, this.roughLowOf);
-      this.roughK = k;
+      memo[m + ROUGH_LOW] = Math.max(low, roughLowOf);
+      memo[m + ROUGH_K] = k;
       return Math.max(a, b);
     }
-    this.roughLow = low;
-    this.roughK = k;
+    memo[m + ROUGH_LOW] = low;
+    memo[m + ROUGH_K] = k;
     return a;
   }
 
   // the shifted tails' lower bound at k, taken with overflowRiskRough (0 where they do not apply)
   overflowRiskRoughLower(k: number): number {
-    if (k !== this.roughK) this.overflowRiskRough(k);
-    return this.roughLow;
+    if (k !== this.memo[this.m + ROUGH_K]) this.overflowRiskRough(k);
+    return this.memo[this.m + ROUGH_LOW]!;
   }
 
   private roughOf(profile: MagnitudeProfile, t: number, at: number): number {
     if (!enclosureApplies(profile, t)) {
-      this.roughLowOf = 0;
+      roughLowOf = 0;
       return 1;
     }
     const base = this.levelsAt() + at;
     const levels = this.levels.levels;
     shiftBoundsTabled(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
-    this.roughLowOf = PAIR[0]!;
+    roughLowOf = PAIR[0]!;
     return PAIR[1]!;
   }
 
   private flushUppers(k: number): void {
-    if (k === this.flushK) return;
+    const memo = this.memo;
+    const m = this.m;
+    if (k === memo[m + FLUSH_K]) return;
     const t = this.limits.flushBound * 2 ** -k;
-    this.flushStart = energyBelowUpper(this.start, t);
-    this.flushEnd = this.same ? this.flushStart : energyBelowUpper(this.end, t);
-    this.flushK = k;
+    memo[m + FLUSH_START] = energyBelowUpper(this.start, t);
+    memo[m + FLUSH_END] = this.same ? memo[m + FLUSH_START]! : energyBelowUpper(this.end, t);
+    memo[m + FLUSH_K] = k;
   }
 
   // The worse of the start and end values, as the curves take it, skipping the profile whose upper bound is below the
@@ -318,9 +339,11 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const level = this.limits.overflowLevel * 2 ** -k;
     if (this.same) return probabilityAnyAbove(this.start, level);
     this.overflowUppers(k);
-    const startFirst = this.overflowStart >= this.overflowEnd;
+    const start = this.memo[this.m + OVERFLOW_START]!;
+    const end = this.memo[this.m + OVERFLOW_END]!;
+    const startFirst = start >= end;
     const a = probabilityAnyAbove(startFirst ? this.start : this.end, level);
-    if ((startFirst ? this.overflowEnd : this.overflowStart) <= a) return a;
+    if ((startFirst ? end : start) <= a) return a;
     return Math.max(a, probabilityAnyAbove(startFirst ? this.end : this.start, level));
   }
 
@@ -328,28 +351,30 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const bound = this.limits.flushBound * 2 ** -k;
     if (this.same) return energyBelow(this.start, bound);
     this.flushUppers(k);
-    const startFirst = this.flushStart >= this.flushEnd;
+    const start = this.memo[this.m + FLUSH_START]!;
+    const end = this.memo[this.m + FLUSH_END]!;
+    const startFirst = start >= end;
     const a = energyBelow(startFirst ? this.start : this.end, bound);
-    if ((startFirst ? this.flushEnd : this.flushStart) <= a) return a;
+    if ((startFirst ? end : start) <= a) return a;
     return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
   }
 
   overflowRiskUpper(k: number): number {
     this.overflowUppers(k);
-    return Math.max(this.overflowStart, this.overflowEnd);
+    return Math.max(this.memo[this.m + OVERFLOW_START]!, this.memo[this.m + OVERFLOW_END]!);
   }
 
   // the moment bounds' lower end (0 for a profile without them: the worse of two values is at least either's)
   overflowRiskLower(k: number): number {
     this.overflowUppers(k);
-    const a = this.overflowStartLow;
-    const b = this.overflowEndLow;
+    const a = this.memo[this.m + OVERFLOW_START_LOW]!;
+    const b = this.memo[this.m + OVERFLOW_END_LOW]!;
     return Math.max(a === a ? a : 0, b === b ? b : 0);
   }
 
   flushedEnergyUpper(k: number): number {
     this.flushUppers(k);
-    return Math.max(this.flushStart, this.flushEnd);
+    return Math.max(this.memo[this.m + FLUSH_START]!, this.memo[this.m + FLUSH_END]!);
   }
 }
 
