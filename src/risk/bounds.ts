@@ -147,8 +147,15 @@ export class ProfileDrawBounds {
       return;
     }
     // laws.ts drawBounds on anyOf(above(r, t), n), the draws beyond ±9 allowed up to 1
-    const a = anyOf(this.law.above(this.lowest, t), this.count);
     const b = anyOf(this.law.above(this.highest, t), this.count);
+    // 0 at the highest draw is a tail of 0 (anyOf is 0 only for that): erfc's exponential underflowed, and it does
+    // further out, at the lowest draw, too; so the pair is [0, 0] as below, without evaluating it (the window's
+    // searches meet this for most tensors at their extreme exponents)
+    if (b === 0) {
+      into[at] = into[at + 1] = 0;
+      return;
+    }
+    const a = anyOf(this.law.above(this.lowest, t), this.count);
     if (a === b) {
       into[at] = into[at + 1] = Math.min(1, Math.max(0, a));
       return;

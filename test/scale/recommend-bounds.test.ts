@@ -98,6 +98,21 @@ describe("ProfileDrawBounds", () => {
     }
     expect(checked).toBe((SHAPES.length * 24 + 4) * THRESHOLDS.length);
   });
+
+  it("gives [0, 0] where the highest draw's tail underflows, as the draw rule does, and not short of it", () => {
+    // a Gaussian tail erfc(x) ≈ e^{−x²}/(x√π) is below the smallest binary64 subnormal 2^−1074 (IEEE 754-2019 §3.6)
+    // once x² passes about 745 (x ≈ 27.3): the rule's every node is 0 there; at x = 26 it is about 1e-296, not 0
+    const p: MagnitudeProfile = { elements: 65_536, zeroFraction: 0.3, shape: "gaussian", rms: 7e-5, log2Spread: 3.16 };
+    const highest = 7e-5 * 2 ** (9 * 3.16);
+    const fast = new ProfileDrawBounds(p);
+    for (const x of [26, 27, 27.5, 28, 40, 1e6]) {
+      const t = x * Math.SQRT2 * highest;
+      const expected = probabilityAnyAboveBounds(p, t);
+      expect(fast.anyAbove(t)).toEqual(expected);
+      if (x >= 28) expect(expected).toEqual([0, 0]);
+      if (x <= 26) expect(expected[1]).toBeGreaterThan(0);
+    }
+  });
 });
 
 describe("boundedLossScaleCurves", () => {
