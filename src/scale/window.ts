@@ -271,6 +271,10 @@ class WindowSearch {
   // scratch of one edge setter's search (worst): each tensor's upper bound, and whether it was integrated
   private readonly worstHighs: Float64Array;
   private readonly visited: Uint8Array;
+  // per tensor the highest exponent where its overflow risk is known to be exactly 0 (−∞: none): the risk grows with
+  // k, so it is 0 at every exponent below, and the union bound and the edge setter's scan pass such a tensor by one
+  // comparison (most tensors of a large network at the extreme exponents a search starts from)
+  private readonly zeroTo: Float64Array;
 
   constructor(
     private readonly tensors: readonly ScaledTensorCurves[],
@@ -297,6 +301,7 @@ class WindowSearch {
     this.heap = new IndexHeap(this.highs, this.overflowRank);
     this.worstHighs = new Float64Array(this.n);
     this.visited = new Uint8Array(this.n);
+    this.zeroTo = new Float64Array(this.n).fill(-Infinity);
   }
 
   get flushTolerance(): number {
@@ -395,6 +400,12 @@ class WindowSearch {
     }
     table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
     this.mark(curve, table, i);
+    if (curve === "overflow" && table.data[4 * i + 1] === 0) this.zeroAt(i, table.k);
+  }
+
+  // tensor i's overflow risk is at most 0 at k
+  private zeroAt(i: number, k: number): void {
+    if (k > (this.zeroTo[i] as number)) this.zeroTo[i] = k;
   }
 
   // something was learnt of tensor i at the table's exponent
@@ -413,6 +424,7 @@ class WindowSearch {
     table.data[4 * i + 3] = v;
     table.flags[i] = (table.flags[i] as number) | HAS_VALUE;
     this.mark(curve, table, i);
+    if (curve === "overflow" && v === 0) this.zeroAt(i, table.k);
     return v;
   }
 
@@ -547,8 +559,10 @@ class WindowSearch {
     let low = 0;
     let high = 0;
     let unbounded = 0;
+    const zeroTo = this.zeroTo;
     for (let i = 0; i < n; i++) {
-      if (active[i] === 0) {
+      // a tensor set aside, or one whose risk is 0 here, adds nothing to either sum: left out of them (state 3)
+      if (active[i] === 0 || k <= (zeroTo[i] as number)) {
         state[i] = 3;
         continue;
       }
@@ -749,8 +763,14 @@ class WindowSearch {
     const visited = this.visited;
     visited.fill(0);
     let floor = -Infinity;
+    const zeroTo = this.zeroTo;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) continue;
+      // a risk of 0 here: bounded by 0, and it raises no floor (every lower bound of it is at most 0)
+      if (curve === "overflow" && k <= (zeroTo[i] as number)) {
+        highs[i] = 0;
+        continue;
+      }
       let known = this.known(curve, k, i, table);
       if (known[1] === Infinity) {
         this.cheapBounds(curve, i, table);
