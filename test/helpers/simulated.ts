@@ -24,6 +24,32 @@ export function measuredDifferences(yaml: string, name: string, pattern: RegExp,
   return new Map(comparison!.rows.filter((r) => pattern.test(r.id)).map((r) => [r.id, r.differenceBinades]));
 }
 
+/** A tensor's draw-to-draw spread: measured over the draws and predicted, both as the standard deviation of log2 rms. */
+export interface SpreadRow {
+  measured: number;
+  predicted: number;
+}
+
+/**
+ * The measured and predicted draw-to-draw spread of every tensor, unrounded, over `draws` draws (seeds 1 …). The rms
+ * measured is of all elements, zeros included (the simulation's rms over the nonzero ones times √(1 − zero share)):
+ * the rules' spread is that of ln of a tensor's squared norm (Hanin & Nica 2019), and a ReLU unit's count of nonzero
+ * terms moves with its mean square, so the rms of the nonzero elements alone spreads less.
+ */
+export function measuredSpreads(yaml: string, name: string, draws: number): Map<string, SpreadRow> {
+  const parsed = parseSpec(yaml, `${name}.yaml`);
+  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
+  const { comparison } = simulate(parsed.spec, { draws, seed: 1, round: false, predict });
+  const rows = new Map<string, SpreadRow>();
+  for (const r of comparison!.rows) {
+    const logs = r.measured.draws.map((d) => Math.log2(d.rms * Math.sqrt(1 - d.zeroFraction)));
+    const mean = logs.reduce((a, b) => a + b, 0) / logs.length;
+    const variance = logs.reduce((a, b) => a + (b - mean) ** 2, 0) / (logs.length - 1);
+    rows.set(r.id, { measured: Math.sqrt(variance), predicted: r.predictedLog2Spread });
+  }
+  return rows;
+}
+
 /**
  * The spec of an invented image classifier: `layers` (YAML list items, one a line, a leading newline dropped) then a
  * flatten and a 4-way dense head, trained with cross-entropy under {@link WIDE_PLAN}.

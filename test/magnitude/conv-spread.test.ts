@@ -1,8 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { predict } from "../../src/magnitude/index.js";
-import { simulate } from "../../src/simulate/index.js";
-import { parseSpec } from "../../src/spec/index.js";
-import { WIDE_PLAN } from "../helpers/simulated.js";
+import { WIDE_PLAN, measuredSpreads } from "../helpers/simulated.js";
 
 // The draw-to-draw spread of a tensor's scale (Hanin & Nica 2019: ln of a squared norm is near Gaussian, its variance
 // κ·Σ 1/width) in a convolutional network. A channel's weights serve every pixel of every sample, so its mean square
@@ -32,27 +29,8 @@ ${WIDE_PLAN}layers:
   - { type: dense, name: head, width: 4 }
 `;
 
-interface SpreadRow {
-  measured: number;
-  predicted: number;
-}
-
-function spreads(yaml: string, name: string, draws: number): Map<string, SpreadRow> {
-  const parsed = parseSpec(yaml, `${name}.yaml`);
-  if (!parsed.ok) throw new Error(parsed.issues.map((i) => i.message).join("; "));
-  const { comparison } = simulate(parsed.spec, { draws, seed: 1, round: false, predict });
-  const rows = new Map<string, SpreadRow>();
-  for (const r of comparison!.rows) {
-    const logs = r.measured.draws.map((d) => Math.log2(d.rms));
-    const mean = logs.reduce((a, b) => a + b, 0) / logs.length;
-    const variance = logs.reduce((a, b) => a + (b - mean) ** 2, 0) / (logs.length - 1);
-    rows.set(r.id, { measured: Math.sqrt(variance), predicted: r.predictedLog2Spread });
-  }
-  return rows;
-}
-
 describe("the finite-width spread of a convolutional network's tensors", () => {
-  const rows = spreads(QUARRY, "quarry-grit", 41);
+  const rows = measuredSpreads(QUARRY, "quarry-grit", 41);
   const cases: [string, string][] = [
     ["c1/pre-activation", "the first convolution's output (0.36 against 0.07 before)"],
     ["p1/activation", "the first pool's output (0.57 against 0.07 before)"],
