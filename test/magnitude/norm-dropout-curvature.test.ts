@@ -141,7 +141,9 @@ layers:
   - { type: rms-norm, name: final }
   - { type: dense, name: head, width: 4 }
 `;
-    const d = measuredDifferences(yaml, "river-gauge", /residual-0\.dense-[13]\/weight-gradient:bias$/);
+    // the median of 41 draws: these sums spread 0.3–0.45 binade from draw to draw, so a median of 5 strays by about
+    // 1.25·σ/√5 ≈ 0.2 binade by chance (the standard error of a median), the tolerance itself
+    const d = measuredDifferences(yaml, "river-gauge", /residual-0\.dense-[13]\/weight-gradient:bias$/, 41);
     expect(d.size).toBe(8);
     for (const [id, value] of d) {
       // the last dense of each branch keeps ~0.4–0.5 binade high, from the skip (see the sweep report); before, 1.26–1.42.

@@ -7,7 +7,7 @@ import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { Conv2dLayer } from "../../spec/types.js";
 import { crossCorrelationOf, factor, fmt, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, weightOf } from "../common.js";
-import { type DenseStash, linearBackward, linearForward } from "../dense/analytic.js";
+import { type DenseStash, gradientPairs, linearBackward, linearForward, transposedUnitSpread } from "../dense/analytic.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { conv2dGeometry } from "./kernel.js";
@@ -88,24 +88,6 @@ function unitSpread(ctx: OpContext, layer: GraphLayer, input: Signal, output: Si
   output.fresh = { width: fresh.width, kappa, unitKappa: kappa, unit };
 }
 
-/**
- * The input gradient's channel sums over batch × input pixels the same way: δ_in = Σ w·δ_out over the fan_out =
- * out-channels × k² weights of that input channel, a Gaussian quadratic form in them, whose pairs of terms are the
- * output gradient's at two pixels of one sample and at two samples (at one pixel in P, at two pixels otherwise), spread
- * by Fisher's (1 − c̄²)²/fan_out (own algebra, as unitSpread)
- */
-function backwardUnitSpread(batch: number, layer: GraphLayer, fanOut: number, output: Gradient, input: Gradient, width: number): void {
-  const pixels = positionCount(layer.output);
-  const other = (sampleCorrelationOf(output) + (pixels - 1) * crossCorrelationOf(output)) / pixels;
-  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean, deviation: (1 - mean * mean) / Math.sqrt(Math.max(fanOut, 1)) });
-  const unit = unitPairs(batch, positionCount(layer.input), pairs(positionCorrelationOf(output)), pairs(other));
-  const kappa = linearUnitKappa(unit);
-  const before = input.logVar;
-  input.logVar = output.logVar + kappa / width;
-  input.fresh = { width, kappa, unit };
-  if (input.sharedLogVar !== undefined) input.sharedLogVar += input.logVar - before;
-}
-
 export const conv2dRule: AnalyticRule<DenseStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<DenseStash> {
     const result = linearForward(ctx, layer, input, "conv2d");
@@ -149,7 +131,7 @@ export const conv2dRule: AnalyticRule<DenseStash> = {
     const variance = ctx.variance(w);
     const gain = variance * connections;
     const result = linearBackward(ctx, layer, stash, output, gain, ctx.ledger ? conv2dBackwardRule(connections, variance, gain) : "", inChannels, variance);
-    if (result.input !== undefined) backwardUnitSpread(ctx.batch, layer, w.fanOut, output, result.input, inChannels);
+    if (result.input !== undefined) transposedUnitSpread(result.input, output, inChannels, gradientPairs(ctx.batch, positionCount(layer.output), positionCount(layer.input), w.fanOut, output, false), false);
     if (taps === undefined) return result;
     const pixels = taps.outRows * taps.outColumns;
     const leak = borderLeak(ctx.batch, taps, output);

@@ -6,7 +6,8 @@
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard } from "../common.js";
-import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, WeightGradientMoment } from "../types.js";
+import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
+import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
 export interface DenseStash {
@@ -38,7 +39,9 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const outWidth = w.shape[0] ?? 1;
   // each output feature's mean over the batch is Σ_i W_ji·(mean of input i): its square averages to fan_in·var_w·shared_in
   const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
-  if (layer.family === "dense" && input.correlationSquare !== undefined && q > 0 && input.q > 0) batchSpread(output, input, ctx.batch, gain * input.q / q, biasVariance / q, input.correlationSquare);
+  const positions = positionCount(layer.output);
+  if (layer.family === "dense" && positions > 1 && q > 0 && input.q > 0) positionSpread(ctx.batch, positions, w.fanIn, input, output, gain * input.q / q, biasVariance / q);
+  else if (layer.family === "dense" && input.correlationSquare !== undefined && q > 0 && input.q > 0) batchSpread(output, input, ctx.batch, gain * input.q / q, biasVariance / q, input.correlationSquare);
   // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
   if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
   if (layer.family === "dense" && q > 0) {
@@ -94,6 +97,30 @@ function batchSpread(output: Signal, input: Signal, batch: number, a: number, b:
 }
 
 /**
+ * batchSpread over positions: a unit's weights serve every position of every sample, so its sum of squares is a
+ * Gaussian quadratic form over T = batch × positions terms, Var/E² = 2·(1/T + the pairs' mean E[c²]) (moments of a
+ * Gaussian quadratic form; own algebra, as a convolution's channel), the pairs of one sample's positions and of two
+ * samples each with their mean cosine and a spread about it: what the carried E[c²] holds beyond the mean, at least the
+ * (1 − c̄²)²/fan_in of fan_in features (Fisher 1915). The pairs go on to the activation (UnitPairs); the batch mean of
+ * each unit keeps Var/E² = 2 per unit, and two samples' cosines gain Fisher's spread over the width, as batchSpread's
+ */
+function positionSpread(batch: number, positions: number, fanIn: number, input: Signal, output: Signal, a: number, b: number): void {
+  const fresh = output.fresh;
+  if (fresh === undefined) return;
+  const rho = sampleCorrelationOf(input);
+  const excess = input.correlationSquare === undefined ? 0 : Math.max(input.correlationSquare - rho * rho, 0);
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean: a * mean + b, deviation: a * Math.sqrt(Math.max(excess, (1 - mean * mean) ** 2 / Math.max(fanIn, 1))) });
+  const unit = unitPairs(batch, positions, pairs(positionCorrelationOf(input)), pairs(rho));
+  const kappa = linearUnitKappa(unit);
+  const width = fresh.width;
+  output.logVar = input.logVar + kappa / width;
+  output.fresh = { width, kappa, unit };
+  const mapped = Math.min(unit.other.mean * unit.other.mean + unit.other.deviation * unit.other.deviation, 1);
+  output.correlationSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
+  output.sharedLogVar = (input.sharedLogVar ?? input.logVar) + LINEAR_KAPPA / width;
+}
+
+/**
  * batchSpread for a transposed map: Σ_n ‖Wᵀδ_n‖² has Var/E² = 2·D/width with D from the gradient vectors' cosines,
  * which the map keeps on average and spreads by Fisher's (1 − c²)²/width. A gradient that carries e of the output's
  * own spread (Gradient.coupling) meets that spread again here: the output is b·x for the very vector b = Wᵀ·(…) whose
@@ -113,6 +140,36 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
     input.logVar += 2 * coupling.elasticity * met;
     input.coupling = { elasticity: coupling.elasticity, budget: coupling.budget - met };
   }
+}
+
+/**
+ * The pairs of the batch × positions terms of a gradient δ_out that a transposed map sums in each input unit: two
+ * positions of one sample and two samples (at one position in P, at two otherwise), each class's cosines spread about
+ * their mean by what the carried E[c²] holds beyond it (`carry`), at least Fisher's (1 − c̄²)²/fan_out of fan_out
+ * features (Fisher 1915)
+ */
+export function gradientPairs(batch: number, positionsOut: number, positionsIn: number, fanOut: number, output: Gradient, carry: boolean): UnitPairs {
+  const other = (sampleCorrelationOf(output) + (positionsOut - 1) * crossCorrelationOf(output)) / positionsOut;
+  const excess = carry && output.cosineSquare !== undefined ? Math.max(output.cosineSquare - other * other, 0) : 0;
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean, deviation: Math.sqrt(Math.max(excess, (1 - mean * mean) ** 2 / Math.max(fanOut, 1))) });
+  return unitPairs(batch, positionsIn, pairs(positionCorrelationOf(output)), pairs(other));
+}
+
+/**
+ * The input gradient's unit sums over batch × positions the same way as a forward unit: δ_in = Σ w·δ_out over the
+ * fan_out weights of that input unit (out-channels × k² for a convolution), a Gaussian quadratic form in them over the
+ * gradient's pairs (gradientPairs; own algebra, as positionSpread). `carry`: the cosines' E[c²] goes on below, with
+ * Fisher's spread over this width (as backwardBatchSpread)
+ */
+export function transposedUnitSpread(input: Gradient, output: Gradient, width: number, unit: UnitPairs, carry: boolean): void {
+  const kappa = linearUnitKappa(unit);
+  const before = input.logVar;
+  input.logVar = output.logVar + kappa / width;
+  input.fresh = { width, kappa, unit };
+  if (input.sharedLogVar !== undefined) input.sharedLogVar += input.logVar - before;
+  if (!carry) return;
+  const mapped = Math.min(unit.other.mean * unit.other.mean + unit.other.deviation * unit.other.deviation, 1);
+  input.cosineSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
 }
 
 /**
@@ -198,7 +255,8 @@ export function linearBackward(
     });
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
-  if (layer.family === "dense" && output.cosineSquare !== undefined) backwardBatchSpread(input, output, ctx.batch, inWidth);
+  if (layer.family === "dense" && positions > 1) transposedUnitSpread(input, output, inWidth, gradientPairs(ctx.batch, positions, positions, weightOf(layer, "weight").fanOut, output, true), true);
+  else if (layer.family === "dense" && output.cosineSquare !== undefined) backwardBatchSpread(input, output, ctx.batch, inWidth);
   if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar + (input.logVar - output.logVar);
   let selfRatio = 1;
   if (curvature !== undefined && layer.family === "dense") {
