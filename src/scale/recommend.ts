@@ -176,9 +176,7 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   // the window keeps values and bounds itself: the parts without memos
   const shared = profiles ?? gradientProfiles(tensors);
   // the shifted tails' levels depend on the counts alone: one table serves every format's curves of these profiles
-  let levels = LEVEL_TABLES.get(shared);
-  if (levels === undefined) LEVEL_TABLES.set(shared, (levels = new ShiftLevelTable(shared.length)));
-  const table = levels;
+  const table = levelTable(shared);
   // each tensor's bounds at the exponent last asked, for this format: one typed array for all the tensors
   const memo = new Float64Array(MEMO_FIELDS * shared.length);
   for (let at = 0; at < memo.length; at += MEMO_FIELDS) memo.set(MEMO_START, at);
@@ -209,8 +207,13 @@ class ShiftLevelTable {
     return base;
   }
 }
-// each set of gradient profiles' level table (an answer's profiles serve several formats)
+// each set of gradient profiles' level table (an answer's profiles serve several formats and the dynamic simulation)
 const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
+function levelTable(profiles: readonly GradientProfiles[]): ShiftLevelTable {
+  let table = LEVEL_TABLES.get(profiles);
+  if (table === undefined) LEVEL_TABLES.set(profiles, (table = new ShiftLevelTable(profiles.length)));
+  return table;
+}
 
 // What a BoundedCurves keeps of the exponent last asked, at these offsets of its tensor's place in one typed array of
 // all the tensors of a format (numbers kept on each object would be a boxed double each, for the collector to copy
@@ -444,7 +447,7 @@ export function dynamicModel(
 ): DynamicScaleModel {
   // the simulation asks for a few points of the horizon at many scales: keep each point's profiles
   const points = new Map<number, HorizonPoint>();
-  const ends = new ShiftEnds(profiles);
+  const ends = new ShiftEnds(profiles, levelTable(profiles));
   const at = (progress: number): HorizonPoint => {
     let point = points.get(progress);
     if (point === undefined) {
@@ -575,7 +578,12 @@ class ShiftEnds {
   // per end (2i start, 2i + 1 end): the moments of the grid counts about its count (enclosureMoments), made on first use
   private readonly below: (LevelMoments | undefined)[];
   private readonly above: (LevelMoments | undefined)[];
-  constructor(private readonly gradients: readonly GradientProfiles[]) {
+  constructor(
+    private readonly gradients: readonly GradientProfiles[],
+    // the levels of each end's count at 3j (as ShiftLevelTable lays them out: 6i start, 6i + 3 end), shared with the
+    // answer's curves, which have made many of them already
+    private readonly levels: ShiftLevelTable,
+  ) {
     this.below = new Array<LevelMoments | undefined>(2 * gradients.length);
     this.above = new Array<LevelMoments | undefined>(2 * gradients.length);
   }
@@ -603,7 +611,7 @@ class ShiftEnds {
       spread: new Float64Array(2 * n),
       count: new Float64Array(2 * n),
       ok: new Uint8Array(2 * n),
-      levels: new Float64Array(6 * n),
+      levels: this.levels.levels,
       bound: new Float64Array(2 * n),
       rawBound: new Float64Array(2 * n),
       bothRms: new Uint8Array(n),
@@ -624,7 +632,8 @@ class ShiftEnds {
         if (side === 0) m.gaussian[i] = enclosed ? 1 : 0;
         if (!enclosed) continue;
         m.ok[j] = 1;
-        shiftLevels(count, m.levels, 3 * j);
+        // the table's levels of this count, at 6i + 3·side = 3j
+        this.levels.at(i, g.start, g.end);
         m.rawBound[j] = law.bound !== undefined && law.bound > 0 ? law.bound : Infinity;
         m.bound[j] = Math.log2(m.rawBound[j]!) - 1e-9;
       }
