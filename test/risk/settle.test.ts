@@ -169,6 +169,45 @@ describe("settled shares and probabilities (src/risk/settle.ts)", () => {
   });
 });
 
+describe("settled shares next to SETTLED (the cap mean's tails, src/risk/settle.ts capSettled)", () => {
+  // Thresholds placed so that the bound E_z[min(1, c·e^{−m·z})] lies around SETTLED, its crossing z* = ln(c)/m just past
+  // the far draw 7.65, where the tails are computed or bounded in closed form: what is settled there is held to the
+  // independent fine quadrature above, and both sides of SETTLED are met (the property is not vacuous)
+  const DENSITY = Math.sqrt(2 / Math.PI);
+  const nearSettled = fc.record({
+    shape: fc.constantFrom(...gaussianShapes),
+    log2Rms: fc.double({ min: -40, max: 40, noNaN: true }),
+    spread: fc.double({ min: 2, max: 4.5, noNaN: true }),
+    crossing: fc.double({ min: -16, max: -7.66, noNaN: true }),
+  });
+
+  it("settle a share only where the fine quadrature of the exact integral is below SETTLED", () => {
+    let settled = 0;
+    let refused = 0;
+    fc.assert(
+      fc.property(nearSettled, ({ shape, log2Rms, spread, crossing }) => {
+        const rms = 2 ** log2Rms;
+        const profile: MagnitudeProfile = { elements: 4096, zeroFraction: 0, shape, rms, log2Spread: spread };
+        const m = spread * Math.LN2;
+        // the share below t: c = √(2/π)·t/rms at rate m; the energy below t: c = √(2/π)·(t/rms)³/3 at rate 3m
+        const tBelow = (rms * Math.exp(crossing * m)) / DENSITY;
+        const tEnergy = rms * Math.cbrt((3 * Math.exp(crossing * 3 * m)) / DENSITY);
+        if (settledBelow(profile, tBelow) === 0) {
+          settled++;
+          expect(fineDraws(rms, spread, (r) => below(r, tBelow))).toBeLessThan(SETTLED);
+        } else refused++;
+        if (settledEnergyBelow(profile, tEnergy) === 0) {
+          settled++;
+          expect(fineDraws(rms, spread, (r) => energy(r, tEnergy))).toBeLessThan(SETTLED);
+        } else refused++;
+      }),
+      { numRuns: 300 },
+    );
+    expect(settled).toBeGreaterThan(50);
+    expect(refused).toBeGreaterThan(50);
+  });
+});
+
 describe("a tensor's risk numbers with the settled shares", () => {
   // what tensorFormatRisk gave before the bounds: profileRisk's integrals, and the subnormal noise where the share is nonzero
   function reference(profile: MagnitudeProfile, format: "binary16" | "bfloat16" | "e5m2") {
