@@ -2,6 +2,7 @@
  * Prediction against the project's float64 simulation (src/simulate: the described network run forward and backward on
  * random data), for the tests that hold a magnitude rule to it.
  */
+import { expect, it } from "vitest";
 import { predict } from "../../src/magnitude/index.js";
 import { simulate } from "../../src/simulate/index.js";
 import { parseSpec } from "../../src/spec/index.js";
@@ -48,6 +49,24 @@ export function measuredSpreads(yaml: string, name: string, draws: number): Map<
     rows.set(r.id, { measured: Math.sqrt(variance), predicted: r.predictedLog2Spread });
   }
   return rows;
+}
+
+/**
+ * One test per `[tensor id, what it checks]`: the tensor's predicted spread within a factor `factor` of the measured,
+ * either way (rows from {@link measuredSpreads}; the measured spread's own sampling error over n draws is about
+ * 1/√(2(n − 1)), the standard error of a standard deviation).
+ */
+export function spreadsWithin(rows: Map<string, SpreadRow>, cases: readonly (readonly [string, string])[], factor = 1.35): void {
+  for (const [id, what] of cases) {
+    it(what, () => {
+      const row = rows.get(id);
+      expect(row, id).toBeDefined();
+      const ratio = row!.predicted / row!.measured;
+      const said = `${id}: predicted ${row!.predicted.toFixed(3)}, measured ${row!.measured.toFixed(3)}`;
+      expect(ratio, said).toBeGreaterThan(1 / factor);
+      expect(ratio, said).toBeLessThan(factor);
+    });
+  }
 }
 
 /**

@@ -1,5 +1,5 @@
-import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredSpreads } from "../helpers/simulated.js";
+import { describe } from "vitest";
+import { WIDE_PLAN, measuredSpreads, spreadsWithin } from "../helpers/simulated.js";
 
 // The draw-to-draw spread of a tensor's scale (Hanin & Nica 2019: ln of a squared norm is near Gaussian, its variance
 // κ·Σ 1/width) in a convolutional network. A channel's weights serve every pixel of every sample, so its mean square
@@ -38,13 +38,5 @@ describe("the finite-width spread of a convolutional network's tensors", () => {
     ["head/pre-activation", "the head's pre-activation after the flatten (0.87 against 0.55 before)"],
     ["head/weight-gradient", "the head's weight gradient (1.10 against 0.76 before)"],
   ];
-  for (const [id, what] of cases) {
-    it(what, () => {
-      const row = rows.get(id);
-      expect(row, id).toBeDefined();
-      const ratio = row!.predicted / row!.measured;
-      expect(ratio, `${id}: predicted ${row!.predicted.toFixed(3)}, measured ${row!.measured.toFixed(3)}`).toBeGreaterThan(1 / 1.35);
-      expect(ratio, `${id}: predicted ${row!.predicted.toFixed(3)}, measured ${row!.measured.toFixed(3)}`).toBeLessThan(1.35);
-    });
-  }
+  spreadsWithin(rows, cases);
 });
