@@ -27,6 +27,9 @@ export interface BatchFlags {
   color?: boolean;
 }
 
+// dist/cli/ → dist/batch/worker.js, the same from the bundle's chunks, which sit beside it
+const WORKER_URL = new URL("../batch/worker.js", import.meta.url);
+
 /** `headroom batch PATH...`: check many specs in parallel; one row per spec (or variant). */
 export async function runBatchCommand(paths: string[], flags: BatchFlags): Promise<void> {
   const variants = variantsFromOptions(flags.vary);
@@ -41,6 +44,9 @@ export async function runBatchCommand(paths: string[], flags: BatchFlags): Promi
   try {
     const running = runBatch(inputs, variants, {
       ...(workers !== undefined ? { workers } : {}),
+      // the built worker, named from here: the command line is bundled (scripts/bundle-worker.mjs), and the default
+      // (run.ts's own neighbour) would then be looked for beside this bundle
+      workerUrl: WORKER_URL,
       workerData: {
         check: flags.plan !== undefined ? { plan: flags.plan } : {},
         // --vary needs the JSON Schema in every worker: built here once, not once per worker
