@@ -10,12 +10,8 @@ import { build } from "vite";
 
 const ROOT = fileURLToPath(new URL("..", import.meta.url));
 
-/**
- * Bundle `entry` (default: dist/batch/worker.js) into `outFile` (default: the entry itself). Node
- * built-ins stay imports; the yaml and zod packages are loaded on demand by createRequire, so
- * `outFile` should sit inside the project for them to resolve.
- */
-export async function bundleWorker(entry = `${ROOT}dist/batch/worker.js`, outFile = entry) {
+// one vite build of tsc's output: Node built-ins and the packages stay imports, nothing minified, source maps kept
+async function bundle(entry, outDir, output) {
   await build({
     configFile: false,
     root: ROOT,
@@ -23,15 +19,24 @@ export async function bundleWorker(entry = `${ROOT}dist/batch/worker.js`, outFil
     publicDir: false,
     build: {
       ssr: entry,
-      outDir: dirname(outFile),
+      outDir,
       emptyOutDir: false,
       copyPublicDir: false,
       minify: false,
       sourcemap: true,
       target: "node20",
-      rolldownOptions: { output: { format: "es", entryFileNames: outFile.slice(dirname(outFile).length + 1) } },
+      rolldownOptions: { output: { format: "es", ...output } },
     },
   });
+}
+
+/**
+ * Bundle `entry` (default: dist/batch/worker.js) into `outFile` (default: the entry itself). Node
+ * built-ins stay imports; the yaml and zod packages are loaded on demand by createRequire, so
+ * `outFile` should sit inside the project for them to resolve.
+ */
+export async function bundleWorker(entry = `${ROOT}dist/batch/worker.js`, outFile = entry) {
+  await bundle(entry, dirname(outFile), { entryFileNames: outFile.slice(dirname(outFile).length + 1) });
 }
 
 /**
@@ -43,23 +48,7 @@ export async function bundleWorker(entry = `${ROOT}dist/batch/worker.js`, outFil
  */
 export async function bundleCli(dir = `${ROOT}dist/cli`) {
   for (const name of readdirSync(dir)) if (name.startsWith("bundle-")) rmSync(join(dir, name));
-  await build({
-    configFile: false,
-    root: ROOT,
-    logLevel: "warn",
-    publicDir: false,
-    build: {
-      ssr: join(dir, "main.js"),
-      outDir: dir,
-      emptyOutDir: false,
-      copyPublicDir: false,
-      minify: false,
-      sourcemap: true,
-      target: "node20",
-      assetsInlineLimit: 0,
-      rolldownOptions: { output: { format: "es", entryFileNames: "main.js", chunkFileNames: "bundle-[name]-[hash].js" } },
-    },
-  });
+  await bundle(join(dir, "main.js"), dir, { entryFileNames: "main.js", chunkFileNames: "bundle-[name]-[hash].js" });
 }
 
 if (process.argv[1] === fileURLToPath(import.meta.url)) {
