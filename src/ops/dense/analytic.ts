@@ -75,6 +75,27 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
 }
 
 /**
+ * E[c''²] of two vectors' cosine after a random map over `width` independent units, from E[c'²] = s: the variance of a
+ * sample correlation, (1 − c'²)²/n (Fisher 1915), added to leading order
+ */
+function fisherSquare(s: number, width: number): number {
+  return Math.min(s + ((1 - s) * (1 - s)) / width, 1);
+}
+
+/** A pair class's E[c²]: its mean's square plus its variance (at most 1). */
+function classSquare(pairs: { mean: number; deviation: number }): number {
+  return Math.min(pairs.mean * pairs.mean + pairs.deviation * pairs.deviation, 1);
+}
+
+/**
+ * The standard deviation of a pair class's cosines about `mean`: what the carried E[c²] holds beyond the mean
+ * (`excess`), at least Fisher's (1 − c̄²)²/fan of `fan` features (Fisher 1915)
+ */
+function fisherDeviation(mean: number, excess: number, fan: number): number {
+  return Math.sqrt(Math.max(excess, (1 - mean * mean) ** 2 / Math.max(fan, 1)));
+}
+
+/**
  * The finite-width spread of a dense layer's output over a batch of N samples (one position each), and the spread of
  * the samples' cosines it passes on. Given the input, each output unit's batch vector (w·x_n + b)_n is Gaussian with
  * covariance G (G_nm = var_w·x_n·x_m + var_b), so its batch sum of squares has Var/E² = 2·tr G²/(tr G)² = 2·D with
@@ -91,7 +112,7 @@ function batchSpread(output: Signal, input: Signal, batch: number, a: number, b:
   const D = batch > 1 ? 1 / batch + (1 - 1 / batch) * mapped : 1;
   output.logVar = input.logVar + (LINEAR_KAPPA * D) / width;
   output.fresh = { width, kappa: LINEAR_KAPPA * D };
-  output.correlationSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
+  output.correlationSquare = fisherSquare(mapped, width);
   // the batch mean of each unit, w·x̄ + b, is one Gaussian: its square keeps Var/E² = 2 per unit, D = 1
   output.sharedLogVar = (input.sharedLogVar ?? input.logVar) + LINEAR_KAPPA / width;
 }
@@ -109,14 +130,14 @@ function positionSpread(batch: number, positions: number, fanIn: number, input: 
   if (fresh === undefined) return;
   const rho = sampleCorrelationOf(input);
   const excess = input.correlationSquare === undefined ? 0 : Math.max(input.correlationSquare - rho * rho, 0);
-  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean: a * mean + b, deviation: a * Math.sqrt(Math.max(excess, (1 - mean * mean) ** 2 / Math.max(fanIn, 1))) });
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean: a * mean + b, deviation: a * fisherDeviation(mean, excess, fanIn) });
   const unit = unitPairs(batch, positions, pairs(positionCorrelationOf(input)), pairs(rho));
   const kappa = linearUnitKappa(unit);
   const width = fresh.width;
   output.logVar = input.logVar + kappa / width;
   output.fresh = { width, kappa, unit };
-  const mapped = Math.min(unit.other.mean * unit.other.mean + unit.other.deviation * unit.other.deviation, 1);
-  output.correlationSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
+  const mapped = classSquare(unit.other);
+  output.correlationSquare = fisherSquare(mapped, width);
   output.sharedLogVar = (input.sharedLogVar ?? input.logVar) + LINEAR_KAPPA / width;
 }
 
@@ -133,7 +154,7 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
   const own = (LINEAR_KAPPA * D) / width;
   input.logVar = output.logVar + own;
   input.fresh = { width, kappa: LINEAR_KAPPA * D };
-  input.cosineSquare = Math.min(s + ((1 - s) * (1 - s)) / width, 1);
+  input.cosineSquare = fisherSquare(s, width);
   const coupling = output.coupling;
   if (coupling !== undefined) {
     const met = Math.min(own, coupling.budget);
@@ -151,7 +172,7 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
 export function gradientPairs(batch: number, positionsOut: number, positionsIn: number, fanOut: number, output: Gradient, carry: boolean): UnitPairs {
   const other = (sampleCorrelationOf(output) + (positionsOut - 1) * crossCorrelationOf(output)) / positionsOut;
   const excess = carry && output.cosineSquare !== undefined ? Math.max(output.cosineSquare - other * other, 0) : 0;
-  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean, deviation: Math.sqrt(Math.max(excess, (1 - mean * mean) ** 2 / Math.max(fanOut, 1))) });
+  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean, deviation: fisherDeviation(mean, excess, fanOut) });
   return unitPairs(batch, positionsIn, pairs(positionCorrelationOf(output)), pairs(other));
 }
 
@@ -168,8 +189,8 @@ export function transposedUnitSpread(input: Gradient, output: Gradient, width: n
   input.fresh = { width, kappa, unit };
   if (input.sharedLogVar !== undefined) input.sharedLogVar += input.logVar - before;
   if (!carry) return;
-  const mapped = Math.min(unit.other.mean * unit.other.mean + unit.other.deviation * unit.other.deviation, 1);
-  input.cosineSquare = Math.min(mapped + ((1 - mapped) * (1 - mapped)) / width, 1);
+  const mapped = classSquare(unit.other);
+  input.cosineSquare = fisherSquare(mapped, width);
 }
 
 /**
