@@ -45,6 +45,8 @@ export interface HazardContext {
    * them it is judged at its own gradient, as a site of the prediction is
    */
   weightGradients?: readonly TensorPrediction[];
+  /** the findings are only counted (the loss-scale pick weighs scales by their kinds and severities): no sentences */
+  countOnly?: boolean;
 }
 
 type HeldIn = HazardEvaluation["heldIn"];
@@ -248,8 +250,7 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
     const worse = endWorse ? second : first;
     const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const words = sentenceOf(worse, site, context, ended ? at : null, origin);
-    const sentence = pieced(worse.wording) ? words : flat(words);
+    const sentence = context.countOnly === true ? "" : sentenceText(worse, site, context, ended ? at : null, origin);
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
     if (topInput !== undefined && input === site.input) {
@@ -388,6 +389,12 @@ const AT_END = ` ${when("end")}`;
 // The sentence of the evaluation kept for a site: `draft` holds its numbers, the site and plan the rest; `at` the side
 // of the horizon they are from, for a site judged at both (a tensor's finding says it too: a failure at the first step
 // and one after the weights have grown call for different remedies)
+// an evaluation's sentence as the result keeps it: one flat string, but for the wordings already joined in pieces
+function sentenceText(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null, origin: HazardCheck["origin"]): string {
+  const words = sentenceOf(draft, site, context, at, origin);
+  return pieced(draft.wording) ? words : flat(words);
+}
+
 function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: "start" | "end" | null, origin: HazardCheck["origin"]): string {
   const side = at === null ? "" : at === "start" ? AT_START : AT_END;
   const format = draft.format;

@@ -432,7 +432,8 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
  * The scaled loss is visited in every format that holds it (the activation and the accumulate format), since the same
  * scale moves it there. `visit` gets each finding with its subject's index and whether it is conditional (at risk only
  * where an implementation keeps the value in the activation format, {@link isConditionalFinding}), and returns false to
- * stop: a caller comparing scales stops one once it cannot do better.
+ * stop: a caller comparing scales stops one once it cannot do better. The findings are made to be counted: their
+ * numbers are judgePrediction's, but no sentence is written (a weighed scale's thousands of findings are never told).
  */
 export function judgeScaled(
   subjects: ScaledSubjects,
@@ -440,18 +441,23 @@ export function judgeScaled(
   lossScale: number,
   thresholds: Partial<RiskThresholds> | undefined,
   order: readonly number[],
-  visit: (finding: Finding, subject: number, conditional: boolean) => boolean,
+  visit: (finding: CountedFinding, subject: number, conditional: boolean) => boolean,
 ): void {
   const complete = thresholdsOf(thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...thresholds });
   const settings = formatSettings(subjects.spec.precision, [format], complete);
   const setting = settings[0] as FormatSetting;
   setting.lossScale = lossScale;
+  setting.held.countOnly = true;
+  setting.notHeld.countOnly = true;
   let context: HazardContext | undefined;
   const sites = subjects.sites.length;
   for (const i of order) {
     if (i < sites) {
       const { site, origin } = subjects.sites[i] as ScaledSubjects["sites"][number];
-      context ??= hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
+      if (context === undefined) {
+        context = hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
+        context.countOnly = true;
+      }
       const checked = evaluateHazard(site, context, origin);
       const loss = site.kind === "loss-value";
       for (const f of checked.findings) {
@@ -467,12 +473,15 @@ export function judgeScaled(
   }
 }
 
+/** A finding {@link judgeScaled} visits: what a count of findings reads (its sentence is not written). */
+export type CountedFinding = Omit<Finding, "sentence">;
+
 /**
  * Whether an operation's finding holds only where an implementation keeps the result in the activation format though
  * the plan accumulates in a wider one (the scaled loss, a norm's sum of squares): its rule caps it at "at risk"
  * (README "Verdicts"), and a pick of the loss scale weighs it after every finding that holds as planned.
  */
-export function isConditionalFinding(hazard: Pick<HazardCheck, "evaluations">, finding: Finding): boolean {
+export function isConditionalFinding(hazard: Pick<HazardCheck, "evaluations">, finding: Pick<Finding, "source" | "severity" | "format">): boolean {
   if (finding.source !== "hazard" || finding.severity !== "at-risk") return false;
   // the activation format is evaluated apart only when it is not the accumulate format (src/risk/hazards.ts)
   return hazard.evaluations.some((e) => e.format === finding.format && e.heldIn === "activations" && e.measure === "overflow-risk" && e.verdict === "at-risk");
@@ -517,8 +526,8 @@ function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thr
       format,
       evaluated,
       limits,
-      held: { judged: true, perTensorScaling, blockScaling, thresholds },
-      notHeld: { judged: false, perTensorScaling, blockScaling, thresholds },
+      held: { judged: true, perTensorScaling, blockScaling, thresholds, countOnly: false },
+      notHeld: { judged: false, perTensorScaling, blockScaling, thresholds, countOnly: false },
       decision: new FormatDecision(limits, thresholds),
       contextIndex,
       lossScale: 1,

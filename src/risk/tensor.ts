@@ -189,6 +189,11 @@ export interface TensorRiskOptions {
   /** per-block scale factors (OCP Microscaling, blocks of 32): the block-scaled conversion's shares, replacing the per-tensor ones */
   blockScaling?: BlockScaledRisk | null;
   thresholds: RiskThresholds;
+  /**
+   * the findings are only counted (the loss-scale pick weighs scales by their findings' kinds and severities): their
+   * sentences are left empty and the subnormal remedy is not searched
+   */
+  countOnly?: boolean;
 }
 
 /** Judge a tensor (statistics from {@link tensorStatistics}) against one format's range. */
@@ -463,6 +468,7 @@ function tensorFindings(
   const t = options.thresholds;
   const format = limits.format;
   const subject = tensor.id;
+  const words = options.countOnly !== true;
   // keys in one order for every finding (format, subject, source, kind, severity, value, threshold, at, sentence);
   // each sentence is joined into one flat string: the result keeps thousands of them, and a template literal's
   // chain of concatenations would keep every piece alive (and be copied by the collector) until it is printed; the
@@ -482,10 +488,12 @@ function tensorFindings(
       value: worst.headroom,
       threshold: t.headroomAtRisk,
       at: worst.overflowAt,
-      sentence: [
-        subject, " has ", binades(worst.headroom), " of headroom in ", format, " ", when(worst.overflowAt),
-        ", so a factor ", plainNumber(2 ** Math.max(0, worst.headroom)), " of growth the prediction misses would overflow it.",
-      ].join(""),
+      sentence: words
+        ? [
+            subject, " has ", binades(worst.headroom), " of headroom in ", format, " ", when(worst.overflowAt),
+            ", so a factor ", plainNumber(2 ** Math.max(0, worst.headroom)), " of growth the prediction misses would overflow it.",
+          ].join("")
+        : "",
     };
   }
   if (isGradientRole(tensor.role)) {
@@ -501,10 +509,12 @@ function tensorFindings(
         value: worst.flushedEnergy,
         threshold,
         at: worst.flushAt,
-        sentence: [
-          subject, " loses ", percent(worst.flushedEnergy), " of its squared norm to zero in ", format, " ",
-          when(worst.flushAt), " (limit ", percent(threshold), ").",
-        ].join(""),
+        sentence: words
+          ? [
+              subject, " loses ", percent(worst.flushedEnergy), " of its squared norm to zero in ", format, " ",
+              when(worst.flushAt), " (limit ", percent(threshold), ").",
+            ].join("")
+          : "",
       };
     }
   }
@@ -530,10 +540,12 @@ function tensorFindings(
       value: flushValue,
       threshold,
       at,
-      sentence: (row
-        ? ["The elements of ", subject, " that round to zero in ", format, " ", when(at), " carry ", percent(flushValue), " of each row's probability mass"]
-        : [sentenceStart(percent(flushValue)), " of the nonzero elements of ", subject, " round to zero in ", format, " ", when(at)]
-      ).concat(" (limit ", percent(threshold), ").").join(""),
+      sentence: !words
+        ? ""
+        : (row
+            ? ["The elements of ", subject, " that round to zero in ", format, " ", when(at), " carry ", percent(flushValue), " of each row's probability mass"]
+            : [sentenceStart(percent(flushValue)), " of the nonzero elements of ", subject, " round to zero in ", format, " ", when(at)]
+          ).concat(" (limit ", percent(threshold), ").").join(""),
     };
   }
   // what the subnormal elements cost is the noise their rounding adds (src/risk/subnormal-noise.ts), not their count; a
@@ -551,12 +563,14 @@ function tensorFindings(
       value: worst.subnormalNoise,
       threshold: limit,
       at,
-      sentence: [
-        "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(worst.subnormalNoise),
-        " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
-        percent(at === "start" ? start.subnormalFraction : end.subnormalFraction), " of its nonzero elements are subnormal)",
-        subnormalRemedy(tensor, limits, limit, worst, options, scaled, row), ".",
-      ].join(""),
+      sentence: words
+        ? [
+            "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(worst.subnormalNoise),
+            " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
+            percent(at === "start" ? start.subnormalFraction : end.subnormalFraction), " of its nonzero elements are subnormal)",
+            subnormalRemedy(tensor, limits, limit, worst, options, scaled, row), ".",
+          ].join("")
+        : "",
     };
   }
   return findings.slice(0, found);

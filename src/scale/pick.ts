@@ -86,7 +86,7 @@ function scaleOf(result: CheckResult, format: FormatName): number {
 }
 
 // a gradient sum's rounding error is relative (√n·u), the same at every scale: not a finding the scale moves
-function movesWithScale(f: Finding): boolean {
+function movesWithScale(f: Pick<Finding, "kind">): boolean {
   return f.kind !== "accumulation-error";
 }
 
@@ -94,7 +94,7 @@ function none(): ScaledFindings {
   return { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
 }
 
-function add(counted: ScaledFindings, f: Finding, conditional: boolean): void {
+function add(counted: ScaledFindings, f: Pick<Finding, "kind" | "severity">, conditional: boolean): void {
   if (f.severity === "fails") counted.fails++;
   else counted.atRisk++;
   if (OVERFLOW_KINDS.has(f.kind)) counted.overflowSide++;
