@@ -11,7 +11,7 @@ import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
-import { gaussianAt, settledAnyAbove, settledEnergyBelow } from "./settle.js";
+import { energyBelowAtMost, gaussianAt, settledAnyAbove, settledEnergyBelow } from "./settle.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -961,7 +961,15 @@ function gradientSumSides(
   const endLevel = sides ? sumOverflowLevel(endSummed, block, scaling, limits, t) : startLevel;
   let startOverflow = Number.NaN;
   let endOverflow = Number.NaN;
-  if (!sides) {
+  const overflowAtRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
+  // findings only counted: a side's number matters only past the lower threshold, so a bound under half of it stands
+  // for the number (graded "fits" either way); the numbers past it are the ones the judgement takes
+  const counting = context.countOnly === true;
+  const overflowFinding = Math.min(overflowAtRisk, t.overflowFails);
+  if (counting) {
+    startOverflow = anyAboveAtMost(startSummed, startLevel, nonzeroElements(startSummed), overflowFinding / 2) ? 0 : probabilityAnyAbove(startSummed, startLevel);
+    if (sides) endOverflow = anyAboveAtMost(endSummed, endLevel, nonzeroElements(endSummed), overflowFinding / 2) ? 0 : probabilityAnyAbove(endSummed, endLevel);
+  } else if (!sides) {
     startOverflow = probabilityAnyAbove(startSummed, startLevel);
   } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
@@ -980,7 +988,6 @@ function gradientSumSides(
         ? SETTLED_SIDE
         : probabilityAnyAbove(endSummed, endLevel);
   }
-  const overflowAtRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
     overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
   if (end !== null) {
@@ -995,7 +1002,17 @@ function gradientSumSides(
     let startLost = Number.NaN;
     let endLost = Number.NaN;
     let endLevelDivided = Number.NaN;
-    if (!sides) {
+    // the share lost is at most the divided gradients' share below the level (a finding past the lower threshold)
+    const flushFinding = Math.min(t.energyAtRisk, t.energyFails) / 2;
+    if (counting) {
+      startLost = energyBelowAtMost(startDivided, startLevelDivided, flushFinding) ? 0 : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+      if (sides) {
+        const endScaled = scaledIn(END_SCALED, endInput, lossScale);
+        const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
+        endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
+        endLost = energyBelowAtMost(endDivided, endLevelDivided, flushFinding) ? 0 : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+      }
+    } else if (!sides) {
       startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
     } else {
       const endScaled = scaledIn(END_SCALED, endInput, lossScale);

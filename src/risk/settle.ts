@@ -125,6 +125,16 @@ export function settledEnergyBelow(profile: MagnitudeProfile, t: number): number
 }
 
 /**
+ * Whether the expected share of the squared norm at or below t ({@link energyBelow}) is at most `target`, by the bound
+ * of {@link settledEnergyBelow} ({@link capWithin}); false where it cannot tell (not a Gaussian law at t).
+ */
+export function energyBelowAtMost(profile: MagnitudeProfile, t: number, target: number): boolean {
+  if (!gaussianAt(profile, t)) return false;
+  const a = t / profile.rms;
+  return capWithin((DENSITY / 3) * a * a * a, 3 * (profile.log2Spread > 0 ? profile.log2Spread : 0) * LN2, target);
+}
+
+/**
  * 0 or 1 when the probability that some of the n nonzero elements reach t in a step ({@link probabilityAnyAbove},
  * both signs) is provably within SETTLED of it, else UNSETTLED. The integrand rises with the draw. Above: at most
  * Q(z₀) + n·P(|Z| ≥ u₀) at z₀ = FAR_DRAW, u₀ the threshold in units of the scale drawn there, with

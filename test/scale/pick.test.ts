@@ -4,6 +4,9 @@ import { check, type CheckAnswer } from "../../src/check.js";
 import type { FormatName } from "../../src/formats/names.js";
 import { renderCheckText } from "../../src/report/check-text.js";
 import { parseSpec } from "../../src/spec/index.js";
+import { buildGraph } from "../../src/graph/index.js";
+import { predictForCheck } from "../../src/magnitude/predict.js";
+import { judgeScaled, scaledSubjects } from "../../src/risk/judge.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
 // The weighed pick (src/scale/pick.ts) is checked against the check itself: the spec judged at every scale of the
@@ -258,5 +261,50 @@ describe("1 (no scaling) in the window, weighed like the other scales", () => {
     const said = answer.sentences.join(" ");
     expect(said).not.toContain("need no loss scale");
     expect(said).toContain(`1 (no scaling) lies in the window too, but would leave ${atOne.fails + atOne.atRisk} findings`);
+  });
+});
+
+describe("the scales the pick weighs are judged for their counts alone", () => {
+  it("at every scale from 2^-16 to 2^16, judgeScaled counts what the whole check judged at that scale finds", () => {
+    // invented: a kiln-drift regressor averaged over 4 workers, so every weight gradient's sum across them is judged for
+    // overflow and for the share a division by 4 flushes (the bounds that stand in for those numbers below half a
+    // threshold, src/risk/hazards.ts, meet both sides of the thresholds over this range of scales)
+    const layers = Array.from({ length: 12 }, () => "  - { type: dense, width: 96, init: he-normal }\n  - relu").join("\n");
+    const text = `name: kiln-drift
+input: { features: 96 }
+training:
+  batch: 16
+  workers: 4
+  worker-gradients: average
+  accumulation-steps: 2
+  loss: { kind: mean-squared-error }
+  horizon: { steps: 2000, final-loss: 0.05 }
+precision: { activations: binary16, weights: binary16, gradients: binary16, optimizer-states: binary32, master-weights: binary32, accumulate: binary32 }
+layers:
+${layers}
+  - { type: dense, width: 1 }
+`;
+    const parsed = parseSpec(text, "kiln-drift.yaml");
+    if (!parsed.ok) throw new Error("the kiln-drift spec does not load");
+    const spec = parsed.spec;
+    const subjects = scaledSubjects(spec, predictForCheck(buildGraph(spec).graph, spec));
+    const order = Array.from({ length: subjects.sites.length + subjects.tensors.length }, (_, i) => i);
+    const kinds = new Set<string>();
+    for (let k = -16; k <= 16; k += 2) {
+      const found: Counted = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
+      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, (f, _i, conditional) => {
+        if (f.kind === "accumulation-error") return true;
+        kinds.add(f.kind);
+        if (f.severity === "fails") found.fails++;
+        else found.atRisk++;
+        if (OVERFLOW.includes(f.kind)) found.overflowSide++;
+        if (conditional) found.conditional++;
+        return true;
+      });
+      expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
+    }
+    // both sides of the gradient sums' thresholds were met: findings of both kinds at some scale
+    expect(kinds).toContain("gradient-sum-overflow");
+    expect(kinds).toContain("gradient-sum-flush");
   });
 });
