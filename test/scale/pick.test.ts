@@ -287,7 +287,9 @@ ${layers}
     const parsed = parseSpec(text, "kiln-drift.yaml");
     if (!parsed.ok) throw new Error("the kiln-drift spec does not load");
     const spec = parsed.spec;
-    const subjects = scaledSubjects(spec, predictForCheck(buildGraph(spec).graph, spec));
+    const built = buildGraph(spec);
+    if (!built.ok) throw new Error("the kiln-drift graph does not build");
+    const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
     const order = Array.from({ length: subjects.sites.length + subjects.tensors.length }, (_, i) => i);
     const kinds = new Set<string>();
     for (let k = -16; k <= 16; k += 2) {
