@@ -473,6 +473,16 @@ export function judgeScaled(
   }
 }
 
+/**
+ * A judged tensor's findings in one format (none where the format does not hold it), without making its risk objects
+ * where the judgement has not made them yet (a check's tensors make them when their `risks` are first read).
+ */
+export function findingsOfTensor(tensor: TensorCheck, format: FormatName): readonly Finding[] {
+  if (tensor instanceof CheckedTensor) return CheckedTensor.findingsIn(tensor, format);
+  for (const risk of tensor.risks) if (risk.format === format) return risk.findings;
+  return [];
+}
+
 /** A finding {@link judgeScaled} visits: what a count of findings reads (its sentence is not written). */
 export type CountedFinding = Omit<Finding, "sentence">;
 

@@ -8,6 +8,7 @@
 import type { FormatName } from "../formats/names.js";
 import type { Prediction, TensorPrediction } from "../magnitude/types.js";
 import {
+  findingsOfTensor,
   isConditionalFinding,
   isScaledSite,
   judgeScaled,
@@ -61,11 +62,10 @@ export function scaledFindings(result: CheckResult, format: FormatName, subjects
   const counted = none();
   for (const t of result.tensors) {
     if (!LOSS_SCALED_ROLES.includes(t.role)) continue;
-    for (const risk of t.risks) {
-      if (risk.format !== format) continue;
-      for (const f of risk.findings) add(counted, f, false);
-      if (risk.findings.length > 0) subjects?.tensors.add(t.id);
-    }
+    // a format holds a tensor once (its risks list each format once)
+    const findings = findingsOfTensor(t, format);
+    for (const f of findings) add(counted, f, false);
+    if (findings.length > 0) subjects?.tensors.add(t.id);
   }
   const scale = scaleOf(result, format);
   for (const h of result.hazards) {
