@@ -10,6 +10,8 @@
  *     harmonic number: row i attends to i keys), and no shrinking at all for ρ = 1 (rank collapse, Dong et al. 2021);
  *     the softmax weighs keys by how far their input lies along the query's direction, so along that one of the
  *     input's D directions the average keeps τ = E[(Σ_j p_j z_j)²]/s² (≈ s² + Σp² for spread rows) instead of Σp²;
+ *     under a causal mask row i averages only its own prefix, and what positions share beyond what samples share is
+ *     taken as causal averages below leave it, far more among early positions than on average (prefix.ts);
  *   output = o·W_o (H·d → D).
  * Backward runs the same chain in reverse; the softmax Jacobian gives a row Σ_j E[δ_s²] = E[S + S² − 2Σp³]·E[δ_p²]·(1 − ρ_v):
  * it removes the part of the values all positions share, and nearly everything of a concentrated row. The query and key gradients carry Σ_j p_j², so they are small while
@@ -40,6 +42,7 @@ import {
 } from "../common.js";
 import { gaussianSoftmaxRow, gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
 import { densePullback } from "../dense/analytic.js";
+import { prefixAverage, type CausalRows } from "./prefix.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -59,6 +62,8 @@ const SOURCE = "Vaswani et al. 2017, §3.2.1 and footnote 4: Var[q·k] = d·E[q�
 const SOFTMAX_SOURCE = "softmax of N(0, Var[s]) logits, E[Σ_j p_j²] by quadrature (Cressie et al. 1981 Laplace transform)";
 const AVERAGE_SOURCE =
   "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice), plus the query's tilt (own algebra)";
+const PREFIX_SOURCE =
+  "causal average of positions whose correlation comes from causal averages below: two prefix means of i.i.d. terms over t ≤ t' positions have covariance 1/t' (common practice); row t averages its own prefix's pairs (own algebra)";
 const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";
 
 /**
@@ -92,6 +97,8 @@ interface RowSums {
    * the keys' input the average keeps along the direction the query picks out than along any other (headsTilt)
    */
   tiltExcess: number;
+  /** a causal matrix's rows one by one (prefixAverage): Σ_j p_tj² and the tilt's excess of row t at index t − 1 */
+  causalRows?: CausalRows;
 }
 
 function harmonic(n: number): number {
@@ -189,11 +196,15 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
     let centred = 0;
     let slope = 0;
     let tilt = 0;
-    for (const row of rows) {
+    const causalRows: CausalRows = { sumSquares: new Float64Array(positions), tiltExcess: new Float64Array(positions) };
+    for (let i = 0; i < positions; i++) {
+      const row = rows[i] as SoftmaxRowMoments;
       total += row.sumSquares;
       centred += row.centred;
       slope += row.slope;
       tilt += row.tilt - row.sumSquares;
+      causalRows.sumSquares[i] = row.sumSquares;
+      causalRows.tiltExcess[i] = row.tilt - row.sumSquares;
     }
     const unmasked = (positions * (positions + 1)) / 2;
     result = {
@@ -204,6 +215,7 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
       keys: unmasked / positions,
       rowLog2Variance: causalRowLog2Variance(positions),
       tiltExcess: tilt / positions,
+      causalRows,
     };
   }
   if (rowCache.size > 1024) rowCache.clear();
@@ -278,11 +290,20 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     const valuePositionShared = Math.max(positionCorrelationOf(value.signal) * value.signal.q, valueShared);
     // the query's tilt: along the direction a row's logits read from the keys' input, the average keeps τ instead of S
     // of the part positions do not share, one direction of the input's D (own algebra, rowTiltExcess)
-    const headsQ = positionAverage(value.signal.q, valuePositionShared, rows.sumSquares) + ((value.signal.q - valuePositionShared) * rows.tiltExcess) / Math.max(D, 1);
+    // under a causal mask, what positions share beyond what samples share is taken to come from causal averages below,
+    // which make a row's own prefix more alike than all positions are (prefixAverage)
+    const valueFlat = value.signal.q > 0 ? valueShared / value.signal.q : 0;
+    const valuePosition = value.signal.q > 0 ? valuePositionShared / value.signal.q : 0;
+    const prefix = rows.causalRows !== undefined ? prefixAverage(rows.causalRows, D, valueFlat, valuePosition) : undefined;
+    const headsQ =
+      prefix !== undefined
+        ? value.signal.q * prefix.heads
+        : positionAverage(value.signal.q, valuePositionShared, rows.sumSquares) + ((value.signal.q - valuePositionShared) * rows.tiltExcess) / Math.max(D, 1);
+    const headsPairs = prefix !== undefined ? value.signal.q * prefix.pairs : positionAverage(value.signal.q, valuePositionShared, 1 / rows.keys);
     const heads: Signal = {
       q: headsQ,
       shared: valueShared,
-      positionCorrelation: headsQ > 0 ? positionAverage(value.signal.q, valuePositionShared, 1 / rows.keys) / headsQ : 0,
+      positionCorrelation: headsQ > 0 ? headsPairs / headsQ : 0,
       mean: 0,
       zeroFraction: 0,
       shape: "gaussian",
@@ -319,8 +340,8 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       const headFactor = factor(
         averageRatio,
         () =>
-          `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) + (1 − ρ)·(τ − Σ_j p_j²)/D = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}, positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)} and the query's tilt τ − Σ_j p_j² = ${fmt(rows.tiltExcess)} over D = ${D} inputs`,
-        AVERAGE_SOURCE,
+          `attention average: Σ_j p_j² + ρ·(1 − Σ_j p_j²) + (1 − ρ)·(τ − Σ_j p_j²)/D = ${fmt(averageRatio)} with Σ_j p_j² = ${fmt(rows.sumSquares)}${spec.causal ? " (causal: H_P/P at init)" : " (1/P at init)"}, positions correlated by ρ = ${fmt(value.signal.q > 0 ? valuePositionShared / value.signal.q : 0)}${prefix !== undefined && valuePosition > valueFlat ? ` (beyond the ${fmt(valueFlat)} samples share, taken as causal averages': more within each row's prefix)` : ""} and the query's tilt τ − Σ_j p_j² = ${fmt(rows.tiltExcess)} over D = ${D} inputs`,
+        prefix !== undefined && valuePosition > valueFlat ? PREFIX_SOURCE : AVERAGE_SOURCE,
       );
       const outFactor = factor(outGain, () => `attention output: fan_in·var_w = ${fmt(outGain)}`, SOURCES.lengthMap);
       const queryFactor = qFactor(query.gain, "query");

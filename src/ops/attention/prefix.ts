@@ -1,0 +1,133 @@
+/**
+ * Causal attention over positions whose correlation depends on where they sit. A causal average's outputs are prefix
+ * averages: with independent values of unit variance and expected weights E[p_ts] = 1/t (the t keys of row t are
+ * exchangeable), Cov(h_t, h_t') = Σ_s E[p_ts]·E[p_t's] = 1/max(t, t') and E[h_t²] = V_t, the row's own Σ_s p_ts² plus
+ * the query's tilt (common practice: two prefix means of independent terms over t ≤ t' positions have covariance 1/t'
+ * and correlation √(t/t') in units of one term's variance). Added to a residual stream of independent positions, such
+ * outputs make early positions far more alike than late ones: the stream's correlation at s ≠ s' is
+ *   k(s, s') = w·g_s·g_s'/max(s, s'),  g_s = 1/√(1 + w·V_s),
+ * w the average's weight in the stream. A later causal layer's row t averages only the pairs of its prefix, whose mean
+ * correlation k̄_t ≈ 2w/t far exceeds the mean over all P positions that the rules carry (≈ 2w/P): its heads keep
+ * E[v²]·(S_t + ρ_t·(1 − S_t) + (1 − ρ_t)·τ_t/D), ρ_t = f + (1 − f)·k̄_t, instead of the one mean correlation's
+ * (own algebra; f the part every position and sample shares, which is the same at every pair).
+ *
+ * The rules carry one mean correlation between positions, so the shape is assumed: what positions share beyond what
+ * samples share is taken to come from causal averages like this layer's (V_s its own rows), w the weight that gives
+ * the carried mean; what exceeds the largest such mean (w → ∞) is taken as shared alike by every pair. Every sum is
+ * over the separable k, so the cost is linear in P.
+ */
+
+import { findRootBracketed } from "../../numeric/roots.js";
+
+/** A causal layer's rows: Σ_s p_ts² and the tilt's excess τ_t − Σ_s p_ts², index t − 1. */
+export interface CausalRows {
+  sumSquares: Float64Array;
+  tiltExcess: Float64Array;
+}
+
+/** What a causal average makes of values whose positions correlate as the model above has it. */
+export interface PrefixAverage {
+  /** E[h²]/E[v²], the mean over rows */
+  heads: number;
+  /** mean over rows t ≠ t' of E[h_t·h_t']/E[v²] */
+  pairs: number;
+}
+
+/** u = w/(1 + w) ∈ [0, 1] to 1e-9: the heads to about as much, far below what the model's assumption errs by */
+const TOLERANCE = 1e-9;
+
+/** The kernel's sums at u = w/(1 + w): the prefix sums O_t over ordered pairs s ≠ s' ≤ t, in `prefix`. */
+function prefixSums(variances: Float64Array, u: number, prefix: Float64Array): void {
+  let sum = 0;
+  let pairs = 0;
+  for (let s = 1; s <= variances.length; s++) {
+    // k(s, s') = u·γ_s·γ_s'/max with γ_s = 1/√(1 − u + u·V_s) (the same kernel, numerator and denominator over 1 + w)
+    const gs = 1 / Math.sqrt(1 - u + u * (variances[s - 1] as number));
+    pairs += (2 * u * gs * sum) / s;
+    prefix[s - 1] = pairs;
+    sum += gs;
+  }
+}
+
+/**
+ * Heads and pair moments of causal attention over P positions whose values correlate by `position` on average over
+ * pairs, of which `flat` is shared alike by every pair (the sample correlation), with rows `rows` over an input of width
+ * `width` (module comment). Keys are exchangeable within a row, so the pairs of row t weigh (1 − S_t)/(t(t − 1)) each,
+ * and rows t ≠ t' weigh s, s' by the expected weights 1/t·1/t'.
+ */
+export function prefixAverage(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
+  // the start pass runs again for the ledgers with the same numbers (memoised by the rows, which attentionRowSums keeps)
+  let memo = memos.get(rows);
+  if (memo === undefined) {
+    memo = new Map();
+    memos.set(rows, memo);
+  }
+  const key = `${width}|${flat}|${position}`;
+  const hit = memo.get(key);
+  if (hit !== undefined) return hit;
+  const result = average(rows, width, flat, position);
+  if (memo.size > 256) memo.clear();
+  memo.set(key, result);
+  return result;
+}
+
+const memos = new WeakMap<CausalRows, Map<string, PrefixAverage>>();
+
+function average(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
+  const P = rows.sumSquares.length;
+  const D = Math.max(width, 1);
+  const variances = new Float64Array(P);
+  for (let t = 0; t < P; t++) variances[t] = (rows.sumSquares[t] as number) + (rows.tiltExcess[t] as number) / D;
+  const prefix = new Float64Array(P);
+  const allPairs = P * (P - 1);
+  // the largest mean correlation causal averages give (w → ∞); beyond it the excess is shared alike by every pair
+  prefixSums(variances, 1, prefix);
+  const widest = allPairs > 0 ? (prefix[P - 1] as number) / allPairs : 0;
+  let f = Math.max(flat, 0);
+  let c = f < 1 ? (position - f) / (1 - f) : 0;
+  if (c > widest) {
+    f = (position - widest) / (1 - widest);
+    c = widest;
+  }
+  // the mean grows with u from 0 to `widest`
+  const mean = (x: number): number => {
+    prefixSums(variances, x, prefix);
+    return (prefix[P - 1] as number) / allPairs - c;
+  };
+  const u = c <= 0 ? 0 : c >= widest ? 1 : findRootBracketed(mean, 0, 1, TOLERANCE);
+  prefixSums(variances, u, prefix);
+  // heads: row t keeps S_t + ρ_t·(1 − S_t) + (1 − ρ_t)·τ_t/D with ρ_t = f + (1 − f)·k̄_t, k̄_t = O_t/(t(t − 1))
+  let heads = 0;
+  // rows t ≠ t': Σ_(s≤t, s'≤t', s≠s') k(s, s')/(t·t') summed over all t, t' is Σ_(s≠s') k(s, s')·a_s·a_s' with
+  // a_s = Σ_(t≥s) 1/t; the rows' own terms t = t' are Σ_t O_t/t²
+  let same = 0;
+  for (let t = 1; t <= P; t++) {
+    const S = rows.sumSquares[t - 1] as number;
+    const kbar = t > 1 ? (prefix[t - 1] as number) / (t * (t - 1)) : 0;
+    const rho = f + (1 - f) * kbar;
+    heads += S + rho * (1 - S) + ((1 - rho) * (rows.tiltExcess[t - 1] as number)) / D;
+    same += (prefix[t - 1] as number) / (t * t);
+  }
+  heads /= P;
+  let a = 0;
+  const column = new Float64Array(P);
+  for (let s = P; s >= 1; s--) {
+    a += 1 / s;
+    column[s - 1] = a;
+  }
+  let weighted = 0;
+  let total = 0;
+  for (let s = 1; s <= P; s++) {
+    const gs = 1 / Math.sqrt(1 - u + u * (variances[s - 1] as number));
+    const as = column[s - 1] as number;
+    total += (2 * u * gs * as * weighted) / s;
+    weighted += gs * as;
+  }
+  // the independent part's pairs: 1/max(t, t') over t ≠ t', Σ_m 2(m − 1)/m = 2(P − H_P) over P(P − 1) pairs
+  let harmonic = 0;
+  for (let t = 1; t <= P; t++) harmonic += 1 / t;
+  const independent = allPairs > 0 ? (2 * (P - harmonic)) / allPairs : 0;
+  const kernelPairs = allPairs > 0 ? (total - same) / allPairs : 0;
+  const pairs = f + (1 - f) * (independent + kernelPairs);
+  return { heads, pairs };
+}
