@@ -10,11 +10,13 @@ import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
 import { NO_FACTORS, eulerShare, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
-import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import { INV_SQRT_2PI, normalCdf } from "../../numeric/normal.js";
+import type { Text, AnalyticRule, BackwardResult, ChannelSpread, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 import { copiedUnit } from "../unit-pairs.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
 const MAX_SOURCE = "maximum of k independent Gaussian elements (order statistics, computed by quadrature)";
+const OFFSET_SOURCE = "maximum of k Gaussian elements about a mean their channel shares (order statistics, by quadrature)";
 
 /** Window length in elements. */
 export function windowElements(layer: GraphLayer): number {
@@ -135,10 +137,22 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
             : `max of ${k} Gaussians: E[M²]/E[x²]`;
       source = MAX_SOURCE;
     }
+    // a rectifier whose channels' means differ: its windows' maxima, their zeros and pairs with those means
+    const spread = layer.family === "max-pool" ? input.channelSpread : undefined;
+    const offset = spread !== undefined && spread.q === input.q && spread.within > 0 && (spread.between > 0 || spread.position > 0) ? maxOfOffsetWindows(k, spread) : undefined;
+    let shared = layer.family === "average-pool" ? Math.min(sharedOf(input), q) : mean * mean;
+    if (offset !== undefined) {
+      q = offset.q;
+      mean = offset.mean;
+      zeroFraction = spread!.slope === 0 ? offset.off : 0;
+      shared = Math.min(offset.sampleShared, q);
+      rule = `max of ${k} ${spread!.slope === 0 ? "ReLU" : "leaky-ReLU"} outputs, channel means apart: E[φ(M)²]/E[x²]`;
+      source = OFFSET_SOURCE;
+    }
     const output: Signal = {
       q,
       mean,
-      shared: layer.family === "average-pool" ? Math.min(sharedOf(input), q) : mean * mean,
+      shared,
       zeroFraction,
       shape: "gaussian",
       logVar: input.logVar,
@@ -156,7 +170,12 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
         const m = maxOfShared(k, overlap, rectified, leaky?.slope ?? 0);
         return m.cross - m.mean * m.mean;
       });
-      if (pixels > 1 && covariances > 0) output.positionCorrelation = Math.min((mean * mean + (scale * covariances) / (pixels * (pixels - 1))) / q, 1);
+      if (offset !== undefined) {
+        // two windows of one sample share the channel's mean and the sample's part; overlapping ones also their common
+        // pixels, whose covariance about that is taken at the part the pixels do not share (own algebra, to first order)
+        const apart = spread!.within * (1 - spread!.position);
+        if (pixels > 1) output.positionCorrelation = Math.min(Math.max(offset.positionShared + (apart * Math.max(covariances, 0)) / (pixels * (pixels - 1)), 0) / q, 1);
+      } else if (pixels > 1 && covariances > 0) output.positionCorrelation = Math.min((mean * mean + (scale * covariances) / (pixels * (pixels - 1))) / q, 1);
     }
     return {
       output,
@@ -432,4 +451,113 @@ export function maxOfShared(k: number, shared: number, rectified: boolean, slope
 // windows as cover an input on average
 function coveringWords(windows: number): string {
   return windows === 1 ? "the one output gradient whose window covers it" : `each of the ${fmt(windows)} output gradients whose windows cover it, on average`;
+}
+
+/**
+ * Moments of a rectifier's window maxima when its input is μ_c + e: μ_c ~ N(0, between) the channel's mean, the same
+ * at every pixel and sample of the channel, and e of variance `within`, a share `position` of it common to a sample's
+ * pixels. A window's k pre-activations are then S + t·z_i, S ~ N(0, between + position·within) the part they share and
+ * t² = (1 − position)·within, and max φ = φ(S + t·max z) for the increasing φ(x) = max(x, 0) + a·min(x, 0). Given
+ * m = t·max z, the Gaussian S gives E[(m + S)⁺] = mΦ(m/σ) + σφ(m/σ) and E[((m + S)⁺)²] = (m² + σ²)Φ(m/σ) + mσφ(m/σ)
+ * (moments of a truncated normal); max z has density k·φ(z)·Φ(z)^(k−1) (order statistics). Two samples' windows share
+ * only μ_c: E_μ[E[φ(M) | μ]²]; two windows of one sample share S: E_S[E[φ(M) | S]²] (without overlap). Simpson's rule in
+ * z and in the shared part, each on [−8, 8] (own algebra).
+ */
+export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWindows {
+  const { between, within, position, slope: a } = spread;
+  const key = `${k}:${between}:${within}:${position}:${a}`;
+  const hit = offsetCache.get(key);
+  if (hit !== undefined) return hit;
+  const common = between + position * within;
+  const sigma = Math.sqrt(common);
+  const t = Math.sqrt(Math.max((1 - position) * within, 0));
+  const { z, weight } = offsetGrid(k);
+  let q = 0;
+  let mean = 0;
+  let on = 0;
+  for (let i = 0; i < z.length; i++) {
+    const m = t * z[i]!;
+    const w = weight[i]!;
+    if (sigma > 0) {
+      const r = m / sigma;
+      const cdf = normalCdf(r);
+      const pdf = Math.exp(-0.5 * r * r) * INV_SQRT_2PI;
+      const positiveSquare = (m * m + common) * cdf + m * sigma * pdf;
+      q += w * (positiveSquare + a * a * (m * m + common - positiveSquare));
+      mean += w * phiMean(m, sigma, a);
+      on += w * cdf;
+    } else {
+      const f = m > 0 ? m : a * m;
+      q += w * f * f;
+      mean += w * f;
+      // the step at m = 0 is at z = 0, an even node of the grid: its midpoint value leaves Simpson's two panels exact
+      on += w * (m > 0 ? 1 : m < 0 ? 0 : 0.5);
+    }
+  }
+  // E_S[E[φ(S + X + t·max z) | S]²] for S ~ N(0, outer) and X ~ N(0, inner), the part the pair does not share
+  const pair = (outer: number, inner: number): number => {
+    const so = Math.sqrt(outer);
+    const si = Math.sqrt(inner);
+    if (!(so > 0)) return mean * mean;
+    let value = 0;
+    for (let j = 0; j < OUTER.x.length; j++) {
+      const s = so * OUTER.x[j]!;
+      let g = 0;
+      for (let i = 0; i < z.length; i++) g += weight[i]! * phiMean(s + t * z[i]!, si, a);
+      value += OUTER.weight[j]! * g * g;
+    }
+    return value;
+  };
+  const result = { q, mean, off: Math.min(Math.max(1 - on, 0), 1), sampleShared: pair(between, position * within), positionShared: pair(common, 0) };
+  offsetCache.set(key, result);
+  return result;
+}
+
+/**
+ * E[φ(m + s·X)] for X ~ N(0, 1) and φ(x) = max(x, 0) + a·min(x, 0): E[(m + sX)⁺] = mΦ(m/s) + sφ(m/s) (the mean of a
+ * truncated normal), and φ(m) itself at s = 0.
+ */
+function phiMean(m: number, s: number, a: number): number {
+  if (!(s > 0)) return m > 0 ? m : a * m;
+  const r = m / s;
+  const positive = m * normalCdf(r) + s * Math.exp(-0.5 * r * r) * INV_SQRT_2PI;
+  return positive + a * (m - positive);
+}
+
+/** maxOfOffsetWindows: E[φ(M)²], E[φ(M)], P(M ≤ 0), and E[φ φ'] for two samples' windows and two of one sample's */
+export interface OffsetWindows {
+  q: number;
+  mean: number;
+  off: number;
+  sampleShared: number;
+  positionShared: number;
+}
+
+const offsetCache = new Map<string, OffsetWindows>();
+
+/** Simpson's rule on [−8, 8] in `steps` steps, the weights times `density`. */
+function simpsonGrid(steps: number, density: (x: number) => number): { x: Float64Array; weight: Float64Array } {
+  const h = 16 / steps;
+  const x = new Float64Array(steps + 1);
+  const weight = new Float64Array(steps + 1);
+  for (let i = 0; i <= steps; i++) {
+    x[i] = -8 + i * h;
+    weight[i] = (((i === 0 || i === steps ? 1 : i % 2 === 1 ? 4 : 2) * h) / 3) * density(x[i]!);
+  }
+  return { x, weight };
+}
+
+const standardDensity = (x: number): number => Math.exp(-0.5 * x * x) * INV_SQRT_2PI;
+/** the shared part's standard normal, 80 steps of 0.2 */
+const OUTER = simpsonGrid(80, standardDensity);
+const offsetGrids = new Map<number, { z: Float64Array; weight: Float64Array }>();
+
+/** the maximum of k standard normals, density k·φ(z)·Φ(z)^(k−1), 160 steps of 0.1 */
+function offsetGrid(k: number): { z: Float64Array; weight: Float64Array } {
+  const hit = offsetGrids.get(k);
+  if (hit !== undefined) return hit;
+  const g = simpsonGrid(160, (z) => k * standardDensity(z) * Math.pow(normalCdf(z), k - 1));
+  const grid = { z: g.x, weight: g.weight };
+  offsetGrids.set(k, grid);
+  return grid;
 }
