@@ -102,6 +102,27 @@ describe("gaussianSoftmaxRows", () => {
     for (const n of [1, 2, 7, 40]) expect(rows[n - 1]!.sumSquares / (n * gaussianSoftmaxMoments(3, n).second)).toBeCloseTo(1, 9);
   });
 
+  it("a long causal row set (past 128 keys the rows are interpolated between a grid of lengths) agrees with each length's own quadrature within 1e-9", () => {
+    // each length's own quadrature (gaussianSoftmaxRow: one row, its lattice set at that length) sums no grid; the
+    // lengths taken fall between the grid's, near its start, its middle and its end, and on it; n·E[p²] of
+    // gaussianSoftmaxMoments is a third quadrature (the Laplace transform of E[p²] alone)
+    for (const variance of [0.04, 1.7, 19, 1500]) {
+      const rows = gaussianSoftmaxRows(variance, 3000);
+      expect(rows).toHaveLength(3000);
+      for (const n of [129, 131, 133, 167, 250, 701, 1999, 2950, 2999, 3000]) {
+        const own = gaussianSoftmaxRow(variance, n)!;
+        const row = rows[n - 1]!;
+        for (const field of ["sumSquares", "centred", "slope", "tilt", "tiltMean"] as const) {
+          // the slope is a difference of terms up to 4·S (S + 3S² − 4Σp³): near one-hot rows two quadratures of it on
+          // different lattices agree to ~3e-8 whatever the lengths summed (every length summed did the same)
+          const within = field === "slope" && variance > 100 ? 1e-7 : 1e-9;
+          expect(Math.abs(row[field] / own[field] - 1), `${field} at s² = ${variance}, n = ${n}`).toBeLessThan(within);
+        }
+        if (variance < 100) expect(Math.abs(row.sumSquares / (n * gaussianSoftmaxMoments(variance, n).second) - 1), `n·E[p²] at s² = ${variance}, n = ${n}`).toBeLessThan(1e-9);
+      }
+    }
+  });
+
   it("a seeded Monte Carlo of 20,000 rows agrees within 4 standard errors, spread and concentrated", () => {
     for (const [variance, n, seed] of [[1, 32, 11], [16, 32, 12], [4, 128, 13]] as const) {
       const row = gaussianSoftmaxRows(variance, n)[n - 1]!;
