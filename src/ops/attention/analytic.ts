@@ -42,7 +42,7 @@ import {
 } from "../common.js";
 import { gaussianSoftmaxRow, gaussianSoftmaxRows, type SoftmaxRowMoments } from "../../numeric/softmax.js";
 import { densePullback } from "../dense/analytic.js";
-import { prefixAverage, type CausalRows } from "./prefix.js";
+import { prefixAverage, suffixGradient, type CausalRows } from "./prefix.js";
 import type {
   AnalyticRule,
   BackwardResult,
@@ -460,8 +460,28 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // Σ_(j≠j') a_j·a_j' = P² − Σ_j a_j² (own algebra)
     const headsPositionShared = headsQ * heads.positionCorrelation;
     const columnSquares = spec.causal ? causalColumnSquares(P) : 1;
-    const valueQ = (headsQ - headsPositionShared) * stash.rows.sumSquares + headsPositionShared * columnSquares;
-    const valuePositionShared = P > 1 ? ((headsQ - headsPositionShared) * (1 - stash.rows.sumSquares) + headsPositionShared * (P - columnSquares)) / (P - 1) : valueQ;
+    // under a causal mask δv_s sums the later positions' δo, whose size and pairs are taken as a pre-norm stack and causal
+    // averages above leave them (suffixGradient)
+    const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
+    const valueSignalShared = stash.value.shared ?? 0;
+    const suffix =
+      stash.rows.causalRows !== undefined && stash.value.q > 0 && headsQ > 0
+        ? suffixGradient(
+            stash.rows.causalRows,
+            inWidth,
+            valueSignalShared / stash.value.q,
+            Math.max(positionCorrelationOf(stash.value) * stash.value.q, valueSignalShared) / stash.value.q,
+            sampleCorrelationOf(heads),
+            heads.positionCorrelation,
+          )
+        : undefined;
+    const valueQ = suffix !== undefined ? headsQ * suffix.value : (headsQ - headsPositionShared) * stash.rows.sumSquares + headsPositionShared * columnSquares;
+    const valuePositionShared =
+      suffix !== undefined
+        ? headsQ * suffix.pairs
+        : P > 1
+          ? ((headsQ - headsPositionShared) * (1 - stash.rows.sumSquares) + headsPositionShared * (P - columnSquares)) / (P - 1)
+          : valueQ;
     const valuePositionCorrelation = valueQ > 0 ? valuePositionShared / valueQ : 0;
     const probQ = d * headsQ * stash.value.q;
     const unmaskedShare = spec.causal ? (P + 1) / (2 * P) : 1;
@@ -474,7 +494,6 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // for every key, two keys j ≠ j' pair through (x̃_j·x̃_j')², of mean D·E[x̃²]² for an input of width D: besides the
     // Σ_j p_ij² of independent keys, every pair of keys adds 1/D, and so do the pairs of two samples, which share
     // δo_n·δo_m (own algebra)
-    const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
     // (x̃_j·x̃_j')² has mean tr(Σ̃²) = D·E[x̃²]²·(1 + (D − 1)·E[Cov(x_a, x_b)²]/E[x̃²]²) for input features that covary
     // (featureCovariance, in units of E[x²]², and E[x̃²] = E[x²]·(1 − ρ)): a narrow layer below fills fewer directions (own algebra)

@@ -73,7 +73,17 @@ export function prefixAverage(rows: CausalRows, width: number, flat: number, pos
 
 const memos = new WeakMap<CausalRows, Map<string, PrefixAverage>>();
 
-function average(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
+/** The model's weight u = w/(1 + w) of the causal averages, with the share f every pair has alike, fitted to a mean. */
+interface PrefixFit {
+  u: number;
+  f: number;
+  /** V_s of each position, index s − 1 */
+  variances: Float64Array;
+  /** O_t at u, index t − 1 */
+  prefix: Float64Array;
+}
+
+function fit(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
   const P = rows.sumSquares.length;
   const D = Math.max(width, 1);
   const variances = new Float64Array(P);
@@ -96,6 +106,14 @@ function average(rows: CausalRows, width: number, flat: number, position: number
   };
   const u = c <= 0 ? 0 : c >= widest ? 1 : findRootBracketed(mean, 0, 1, TOLERANCE);
   prefixSums(variances, u, prefix);
+  return { u, f, variances, prefix };
+}
+
+function average(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
+  const P = rows.sumSquares.length;
+  const D = Math.max(width, 1);
+  const allPairs = P * (P - 1);
+  const { u, f, variances, prefix } = fit(rows, width, flat, position);
   // heads: row t keeps S_t + ρ_t·(1 − S_t) + (1 − ρ_t)·τ_t/D with ρ_t = f + (1 − f)·k̄_t, k̄_t = O_t/(t(t − 1))
   let heads = 0;
   // rows t ≠ t': Σ_(s≤t, s'≤t', s≠s') k(s, s')/(t·t') summed over all t, t' is Σ_(s≠s') k(s, s')·a_s·a_s' with
@@ -130,4 +148,119 @@ function average(rows: CausalRows, width: number, flat: number, position: number
   const kernelPairs = allPairs > 0 ? (total - same) / allPairs : 0;
   const pairs = f + (1 - f) * (independent + kernelPairs);
   return { heads, pairs };
+}
+
+/**
+ * The value gradient of causal attention, δv_s = Σ_(t≥s) p_ts·δo_t: a sum over the LATER positions, the mirror of the
+ * forward's prefix (own algebra below; E[p_ts] = 1/t and E[p_ts²] = S_t/t, the t keys of row t being exchangeable).
+ * With Cov(δo_t, δo_t') = C_tt', summed over s:
+ *   Σ_s E[δv_s²] = Σ_t S_t·C_tt + Σ_(t≠t') C_tt'/max(t, t')   (Σ_(s≤min) 1/(t·t') = 1/max),
+ *   Σ_(s,s') E[δv_s·δv_s'] = Σ_(t,t') C_tt'                    (every row sums to 1).
+ * The rules carry the gradient's mean square and mean pair correlation only, so its shape over positions is assumed,
+ * in a pre-norm stack: the stream's variance at s grows as 1 + w·V_s with the causal averages the forward fit found
+ * (fit), and a norm's backward divides position s's gradient by its input's rms, so E[δo_s²] ∝ e_s = γ_s²
+ * (γ_s² = 1/(1 − u + u·V_s)); what the positions' gradients share beyond what samples share is taken as causal
+ * averages above leave it, Σ_(t≥s) p_ts·δo_t at each position s (a sum over its suffix), whose covariance at s, s'
+ * is √(e_s·e_s')·Q_max(s, s') with Q_m = Σ_(t≥m) e_t·(1 − S_t)/(t(t − 1)), and variance e_s·R_s, R_s = Σ_(t≥s) e_t·S_t/t.
+ * So C_ss' = λ·√(e_s·e_s')·([s = s']·(1 + z·R_s) + [s ≠ s']·z·Q_max), λ making the mean square 1 and z the weight that
+ * gives the carried mean pair correlation (closed form: the mean is z·B/(a₀ + z·a₁)); the part samples share is
+ * taken alike at every pair. Every sum is over the separable kernel, so the cost is linear in P.
+ */
+export interface SuffixGradient {
+  /** mean over positions of E[δv²]/E[δo²] */
+  value: number;
+  /** mean over positions s ≠ s' of E[δv_s·δv_s']/E[δo²] */
+  pairs: number;
+}
+
+const suffixMemos = new WeakMap<CausalRows, Map<string, SuffixGradient>>();
+
+/**
+ * Value gradient moments of causal attention whose forward values correlate by `position` on average (of which `flat`
+ * samples share; as prefixAverage) and whose head gradients correlate by `gradientPosition` on average over positions,
+ * of which `gradientFlat` samples share.
+ */
+export function suffixGradient(rows: CausalRows, width: number, flat: number, position: number, gradientFlat: number, gradientPosition: number): SuffixGradient {
+  let memo = suffixMemos.get(rows);
+  if (memo === undefined) {
+    memo = new Map();
+    suffixMemos.set(rows, memo);
+  }
+  const key = `${width}|${flat}|${position}|${gradientFlat}|${gradientPosition}`;
+  const hit = memo.get(key);
+  if (hit !== undefined) return hit;
+  const result = suffix(rows, width, flat, position, gradientFlat, gradientPosition);
+  if (memo.size > 256) memo.clear();
+  memo.set(key, result);
+  return result;
+}
+
+function suffix(rows: CausalRows, width: number, flat: number, position: number, gradientFlat: number, gradientPosition: number): SuffixGradient {
+  const P = rows.sumSquares.length;
+  if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0 };
+  const allPairs = P * (P - 1);
+  const { u, variances } = fit(rows, width, flat, position);
+  // e_s, the norm's 1/rms² at s: γ_s² of the forward's kernel
+  const e = new Float64Array(P);
+  for (let s = 0; s < P; s++) e[s] = 1 / (1 - u + u * (variances[s] as number));
+  // R_s and Q_s, index s − 1, from the end
+  const R = new Float64Array(P);
+  const Q = new Float64Array(P);
+  let r = 0;
+  let q = 0;
+  for (let t = P; t >= 1; t--) {
+    const S = rows.sumSquares[t - 1] as number;
+    const et = e[t - 1] as number;
+    r += (et * S) / t;
+    if (t > 1) q += (et * (1 - S)) / (t * (t - 1));
+    R[t - 1] = r;
+    Q[t - 1] = q;
+  }
+  // a₀ = mean e_s, a₁ = mean e_s·R_s, B = mean over s ≠ s' of √(e_s·e_s')·Q_max; with the sums the value needs
+  let a0 = 0;
+  let a1 = 0;
+  let B = 0;
+  let diagonal0 = 0;
+  let diagonal1 = 0;
+  let across = 0;
+  let roots = 0;
+  for (let m = 1; m <= P; m++) {
+    const em = e[m - 1] as number;
+    const S = rows.sumSquares[m - 1] as number;
+    const rm = Math.sqrt(em);
+    const Qm = Q[m - 1] as number;
+    a0 += em;
+    a1 += em * (R[m - 1] as number);
+    B += 2 * rm * Qm * roots;
+    diagonal0 += S * em;
+    diagonal1 += S * em * (R[m - 1] as number);
+    across += (2 * rm * Qm * roots) / m;
+    roots += rm;
+  }
+  a0 /= P;
+  a1 /= P;
+  B /= allPairs;
+  const rho = Math.min(Math.max(gradientPosition, -1 / (P - 1)), 1);
+  let f = Math.min(Math.max(gradientFlat, 0), Math.max(rho, 0));
+  let c = f < 1 ? (rho - f) / (1 - f) : 0;
+  // the largest mean pair correlation suffix sums give (z → ∞); beyond it the excess is shared alike by every pair
+  const widest = a1 > 0 ? B / a1 : 0;
+  if (c > widest && widest < 1) {
+    f = (rho - widest) / (1 - widest);
+    c = widest;
+  }
+  const z = c > 0 ? (c >= widest ? Infinity : (c * a0) / (B - c * a1)) : 0;
+  // the kernel's part: λ·(Σ S_t·e_t·(1 + z·R_t) + z·Σ_(t≠t') √(e_t·e_t')·Q_max/max), λ = 1/(a₀ + z·a₁) (z → ∞: the limit)
+  const kernel = Number.isFinite(z) ? (diagonal0 + z * (diagonal1 + across)) / (a0 + z * a1) : (diagonal1 + across) / a1;
+  // the flat part: Σ_t S_t + Σ_(t≠t') 1/max(t, t') = Σ_t S_t + 2(P − H_P) (as the forward's pairs)
+  let harmonic = 0;
+  let sumSquares = 0;
+  for (let t = 1; t <= P; t++) {
+    harmonic += 1 / t;
+    sumSquares += rows.sumSquares[t - 1] as number;
+  }
+  const value = (f * (sumSquares + 2 * (P - harmonic)) + (1 - f) * kernel) / P;
+  // Σ_(t,t') C_tt' = P·(1 + (P − 1)·ρ) in units of E[δo²]
+  const pairs = (P * (1 + (P - 1) * rho) - P * value) / allPairs;
+  return { value, pairs };
 }
