@@ -14,11 +14,11 @@
  * (+0.02 … +0.10): the predicted stream, no longer too small at the top, no longer hides the final RMS norm's own +0.02
  * and the attention branches' input gradients, which sit above the prediction at the lowest blocks (with 128
  * positions +0.17 → +0.27 at block 1: what the anti-causal sums δv_j = Σ_(i≥j) p_ij·δo_i make of the gradient's
- * positions, not modelled here).
+ * positions, modelled since by suffixGradient: the figures beside its test below).
  */
 import { describe, expect, it } from "vitest";
 import { createRandom } from "../../src/numeric/index.js";
-import { prefixAverage } from "../../src/ops/attention/prefix.js";
+import { prefixAverage, suffixGradient } from "../../src/ops/attention/prefix.js";
 import { measuredDifferences, WIDE_PLAN } from "../helpers/simulated.js";
 
 // An invented predictor of the next flag signal in a harbour's semaphore log: 64 signals of a 512-signal code book, a
@@ -52,6 +52,18 @@ const SIMULATION_TIMEOUT = 180_000;
 const HEADS = /^dec\.\d\.use-0\.att-part\.att\/activation:heads$/;
 const STREAM = /^dec\.\d\.use-0\.att-part\/activation$/;
 const HEADS_GRADIENT = /^dec\.\d\.use-0\.att-part\.att\/activation-gradient:heads$/;
+const VALUE_GRADIENT = /^dec\.\d\.use-0\.att-part\.att\/activation-gradient:value$/;
+const QUERY_GRADIENT = /^dec\.\d\.use-0\.att-part\.att\/activation-gradient:query$/;
+const KEY_GRADIENT = /^dec\.\d\.use-0\.att-part\.att\/activation-gradient:key$/;
+/** the gradient at the attention's input (the pre-norm's output) */
+const INPUT_GRADIENT = /^dec\.\d\.use-0\.att-part\.rms-norm-0\/activation-gradient$/;
+
+/** the causal decoder's rows, simulated once for the tests that read them */
+let causalRows: Map<string, number> | undefined;
+function causal(): Map<string, number> {
+  causalRows ??= measuredDifferences(semaphore("semaphore-log", true), "semaphore-log", /^dec\./, 9);
+  return causalRows;
+}
 
 function within(rows: Map<string, number>, pattern: RegExp, tolerance: number): void {
   const ids = [...rows.keys()].filter((id) => pattern.test(id));
@@ -61,10 +73,26 @@ function within(rows: Map<string, number>, pattern: RegExp, tolerance: number): 
 
 describe("causal attention averages each row's prefix, whose positions correlate more than all positions do", () => {
   it("semaphore-log (causal): the heads of every block within 0.1 binade of the float64 simulation (before +0.08 … +0.25, after −0.05 … +0.01), the stream within 0.05, the heads' gradients within 0.15", () => {
-    const rows = measuredDifferences(semaphore("semaphore-log", true), "semaphore-log", /^dec\./, 9);
+    const rows = causal();
     within(rows, HEADS, 0.1);
     within(rows, STREAM, 0.05);
     within(rows, HEADS_GRADIENT, 0.15);
+  }, SIMULATION_TIMEOUT);
+
+  // log2(measured/predicted rms), median of 9 draws, blocks 1 … 6, before → after the value gradient's suffix sums:
+  //   value  +0.31 +0.13 +0.08 +0.01 −0.09 −0.21 → −0.05 −0.05 +0.07 +0.13 +0.13 +0.08
+  //   query  +0.05 −0.03 −0.03 −0.10 −0.07 −0.14 → +0.03 −0.01 +0.02 −0.04 +0.01 −0.05
+  //   key    +0.12 +0.05 −0.03 −0.07 −0.09 −0.15 → +0.09 +0.06 +0.01 +0.01 +0.01 −0.04
+  //   input  +0.20 +0.11 +0.02 −0.00 −0.06 −0.18 → −0.01 +0.03 +0.04 +0.09 +0.09 +0.02
+  //   heads  +0.07 +0.09 +0.07 +0.08 +0.08 +0.05 → +0.08 +0.11 +0.10 +0.10 +0.09 +0.05
+  // (with 128 positions: value +0.40 … −0.24 → −0.01 … +0.16, input +0.27 … −0.17 → +0.03 … +0.12, query +0.06 … −0.14
+  // → −0.02 … +0.05, key +0.15 … −0.17 → −0.01 … +0.09)
+  it("semaphore-log (causal): the value, query, key and input gradients of every block within 0.15 binade of the float64 simulation (value before +0.31 at block 1, −0.21 at block 6; after −0.05 … +0.13)", () => {
+    const rows = causal();
+    within(rows, VALUE_GRADIENT, 0.15);
+    within(rows, QUERY_GRADIENT, 0.15);
+    within(rows, KEY_GRADIENT, 0.15);
+    within(rows, INPUT_GRADIENT, 0.15);
   }, SIMULATION_TIMEOUT);
 
   it("semaphore-log-full (not causal): the heads of every block within 0.1 binade of the simulation, as before", () => {
@@ -128,6 +156,104 @@ describe("prefixAverage against a Monte Carlo of prefix means added to independe
       expect(r.heads / heads, `heads ${r.heads} against ${heads}`).toBeLessThan(1.02);
       expect(r.pairs / pairs, `pairs ${r.pairs} against ${pairs}`).toBeGreaterThan(0.98);
       expect(r.pairs / pairs, `pairs ${r.pairs} against ${pairs}`).toBeLessThan(1.02);
+    });
+  }
+});
+
+/**
+ * The value gradient's model against a Monte Carlo of what it assumes (suffixGradient): rows that weigh their prefix
+ * uniformly (p_ts = 1/t, so Σ_s p_ts² = S_t = 1/t), a stream whose position s has variance ∝ 1 + w/s (prefix means of
+ * weight w, whose norm's backward leaves the gradient e_s ∝ 1/(1 + w/s)), and head gradients
+ * δo_t = √e_t·(ε_t + √z·Σ_(t'≥t) √e_t'·η_t'/t') of independent unit ε, η (sums over the suffix, as causal averages above
+ * leave them). The value gradient δv_s = Σ_(t≥s) δo_t/t; the references are its mean square and mean pair product
+ * over 40,000 simulated sequences, and Σ_t E[δo_t²]·c_t over the mean square times Σ_t c_t (c_t = 1/t − 1/t², what the
+ * softmax Jacobian leaves of a uniform row: S + S² − 2Σp³) for the key rows.
+ */
+describe("suffixGradient against a Monte Carlo of head gradients that are suffix sums, scaled by a pre-norm's stream", () => {
+  const P = 24;
+  const uniform = { sumSquares: new Float64Array(P), tiltExcess: new Float64Array(P), centred: new Float64Array(P) };
+  for (let t = 1; t <= P; t++) {
+    uniform.sumSquares[t - 1] = 1 / t;
+    uniform.centred[t - 1] = 1 / t - 1 / (t * t);
+  }
+
+  it("independent positions of one size: the value gradient's mean square H_P/P (Σ_s Σ_(t≥s) 1/t² = Σ_t 1/t), pairs the rest of Σ_t E[δo_t²], rows unweighed", () => {
+    const harmonic = Array.from({ length: P }, (_, i) => 1 / (i + 1)).reduce((a, b) => a + b, 0);
+    const r = suffixGradient(uniform, 1, 0, 0, 0, 0, 1);
+    expect(r.value).toBeCloseTo(harmonic / P, 12);
+    // Σ_(s≠s') E[δv_s·δv_s'] = Σ_t E[δo_t²]·(1 − 1/t) over P(P − 1) pairs: (P − H_P)/(P(P − 1))
+    expect(r.pairs).toBeCloseTo((P - harmonic) / (P * (P - 1)), 12);
+    expect(r.key).toBeCloseTo(1, 12);
+  });
+
+  for (const [w, z] of [
+    [0, 2],
+    [4, 0],
+    [4, 3],
+  ] as const) {
+    it(`stream weight ${w}, suffix weight ${z}: value gradient's mean square and pairs, and the key rows' weight, within 2% of 40,000 simulated sequences`, () => {
+      // the forward's mean pair correlation for weight w (prefixAverage's test) and the head gradients' covariance
+      let forward = 0;
+      for (let s = 1; s <= P; s++) for (let v = 1; v <= P; v++) if (s !== v) forward += w / (Math.max(s, v) * Math.sqrt((1 + w / s) * (1 + w / v)));
+      forward /= P * (P - 1);
+      const e = Array.from({ length: P }, (_, i) => 1 / (1 + w / (i + 1)));
+      const tail = (m: number): number => {
+        let sum = 0;
+        for (let t = m; t <= P; t++) sum += e[t - 1]! / (t * t);
+        return sum;
+      };
+      let variance = 0;
+      let covariance = 0;
+      for (let t = 1; t <= P; t++)
+        for (let v = 1; v <= P; v++) {
+          const c = Math.sqrt(e[t - 1]! * e[v - 1]!) * ((t === v ? 1 : 0) + z * tail(Math.max(t, v)));
+          if (t === v) variance += c;
+          else covariance += c;
+        }
+      const gradient = covariance / (P * (P - 1)) / (variance / P);
+      const r = suffixGradient(uniform, 1, 0, forward, 0, gradient, 1);
+      const random = createRandom(11);
+      const N = 40_000;
+      let squares = 0;
+      let pairs = 0;
+      let heads = 0;
+      const rowSquares = new Float64Array(P);
+      const o = new Float64Array(P);
+      for (let n = 0; n < N; n++) {
+        let suffixSum = 0;
+        for (let t = P; t >= 1; t--) {
+          suffixSum += (Math.sqrt(e[t - 1]!) * random.normal()) / t;
+          o[t - 1] = Math.sqrt(e[t - 1]!) * (random.normal() + Math.sqrt(z) * suffixSum);
+        }
+        let dv = 0;
+        let total = 0;
+        let square = 0;
+        for (let s = P; s >= 1; s--) {
+          dv += o[s - 1]! / s;
+          total += dv;
+          square += dv * dv;
+          heads += o[s - 1]! * o[s - 1]!;
+          rowSquares[s - 1]! += o[s - 1]! * o[s - 1]!;
+        }
+        squares += square;
+        pairs += total * total - square;
+      }
+      const mean = heads / (N * P);
+      const value = squares / (N * P) / mean;
+      const pairMean = pairs / (N * P * (P - 1)) / mean;
+      let keyRows = 0;
+      let keyMean = 0;
+      for (let t = 1; t <= P; t++) {
+        keyRows += (rowSquares[t - 1]! / N / mean) * uniform.centred[t - 1]!;
+        keyMean += uniform.centred[t - 1]!;
+      }
+      const key = keyRows / keyMean;
+      expect(r.value / value, `value ${r.value} against ${value}`).toBeGreaterThan(0.98);
+      expect(r.value / value, `value ${r.value} against ${value}`).toBeLessThan(1.02);
+      expect(r.pairs / pairMean, `pairs ${r.pairs} against ${pairMean}`).toBeGreaterThan(0.98);
+      expect(r.pairs / pairMean, `pairs ${r.pairs} against ${pairMean}`).toBeLessThan(1.02);
+      expect(r.key / key, `key rows ${r.key} against ${key}`).toBeGreaterThan(0.98);
+      expect(r.key / key, `key rows ${r.key} against ${key}`).toBeLessThan(1.02);
     });
   }
 });

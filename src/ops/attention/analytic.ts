@@ -13,7 +13,9 @@
  *     under a causal mask row i averages only its own prefix, and what positions share beyond what samples share is
  *     taken as causal averages below leave it, far more among early positions than on average (prefix.ts);
  *   output = o·W_o (H·d → D).
- * Backward runs the same chain in reverse; the softmax Jacobian gives a row Σ_j E[δ_s²] = E[S + S² − 2Σp³]·E[δ_p²]·(1 − ρ_v):
+ * Backward runs the same chain in reverse; under a causal mask the value gradient δv_s = Σ_(t≥s) p_ts·δo_t sums the later
+ * positions, and the head gradients' size and pairs over positions are taken as a pre-norm stream and causal averages
+ * above leave them, which also weigh the query and key gradients row by row (prefix.ts, suffixGradient). The softmax Jacobian gives a row Σ_j E[δ_s²] = E[S + S² − 2Σp³]·E[δ_p²]·(1 − ρ_v):
  * it removes the part of the values all positions share, and nearly everything of a concentrated row. The query and key gradients carry Σ_j p_j², so they are small while
  * attention is spread out; the query gradient sums δ_s·k over keys, where the keys' shared part cancels too (1 − ρ_k),
  * and pairs of keys add 1/D through the weights they share (D the input width).
@@ -64,6 +66,8 @@ const AVERAGE_SOURCE =
   "attention average of correlated positions: E[o²] = E[v²]·(Σ_j p_j² + ρ·(1 − Σ_j p_j²)) (variance of a weighted mean; common practice), plus the query's tilt (own algebra)";
 const PREFIX_SOURCE =
   "causal average of positions whose correlation comes from causal averages below: two prefix means of i.i.d. terms over t ≤ t' positions have covariance 1/t' (common practice); row t averages its own prefix's pairs (own algebra)";
+const SUFFIX_SOURCE =
+  "causal value gradient: δv_s = Σ_(t≥s) p_ts·δo_t, E[p_ts] = 1/t, so its sum over s is Σ_t S_t·E[δo_t²] + Σ_(t≠t') E[δo_t·δo_t']/max(t, t') (own algebra); a norm's backward divides each position by its input's rms (common practice)";
 const CANCEL_SOURCE = "softmax Jacobian removes what all keys share: the part of E[v²] (E[k²]) common to positions cancels (derived)";
 
 /**
@@ -196,7 +200,7 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
     let centred = 0;
     let slope = 0;
     let tilt = 0;
-    const causalRows: CausalRows = { sumSquares: new Float64Array(positions), tiltExcess: new Float64Array(positions) };
+    const causalRows: CausalRows = { sumSquares: new Float64Array(positions), tiltExcess: new Float64Array(positions), centred: new Float64Array(positions) };
     for (let i = 0; i < positions; i++) {
       const row = rows[i] as SoftmaxRowMoments;
       total += row.sumSquares;
@@ -205,6 +209,7 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
       tilt += row.tilt - row.sumSquares;
       causalRows.sumSquares[i] = row.sumSquares;
       causalRows.tiltExcess[i] = row.tilt - row.sumSquares;
+      causalRows.centred![i] = row.centred;
     }
     const unmasked = (positions * (positions + 1)) / 2;
     result = {
@@ -463,6 +468,10 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // under a causal mask δv_s sums the later positions' δo, whose size and pairs are taken as a pre-norm stack and causal
     // averages above leave them (suffixGradient)
     const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
+    // (x̃_j·x̃_j')² has mean tr(Σ̃²) = D·E[x̃²]²·(1 + (D − 1)·E[Cov(x_a, x_b)²]/E[x̃²]²) for input features that covary
+    // (featureCovariance, in units of E[x²]², and E[x̃²] = E[x²]·(1 − ρ)): a narrow layer below fills fewer directions (own algebra)
+    const inputApart = 1 - positionCorrelationOf(stash.input);
+    const pairWidth = inWidth / (1 + ((inWidth - 1) * (stash.input.featureCovariance ?? 0)) / Math.max(inputApart * inputApart, 1e-12));
     const valueSignalShared = stash.value.shared ?? 0;
     const suffix =
       stash.rows.causalRows !== undefined && stash.value.q > 0 && headsQ > 0
@@ -473,6 +482,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
             Math.max(positionCorrelationOf(stash.value) * stash.value.q, valueSignalShared) / stash.value.q,
             sampleCorrelationOf(heads),
             heads.positionCorrelation,
+            pairWidth,
           )
         : undefined;
     const valueQ = suffix !== undefined ? headsQ * suffix.value : (headsQ - headsPositionShared) * stash.rows.sumSquares + headsPositionShared * columnSquares;
@@ -495,17 +505,14 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // Σ_j p_ij² of independent keys, every pair of keys adds 1/D, and so do the pairs of two samples, which share
     // δo_n·δo_m (own algebra)
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
-    // (x̃_j·x̃_j')² has mean tr(Σ̃²) = D·E[x̃²]²·(1 + (D − 1)·E[Cov(x_a, x_b)²]/E[x̃²]²) for input features that covary
-    // (featureCovariance, in units of E[x²]², and E[x̃²] = E[x²]·(1 − ρ)): a narrow layer below fills fewer directions (own algebra)
-    const inputApart = 1 - positionCorrelationOf(stash.input);
-    const pairWidth = inWidth / (1 + ((inWidth - 1) * (stash.input.featureCovariance ?? 0)) / Math.max(inputApart * inputApart, 1e-12));
     const queryCoherent = queryScale / pairWidth;
-    const queryQ = stash.rows.centredSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent;
+    // under a causal mask row by row: its head gradient's size and its prefix's deviations (suffixGradient)
+    const queryQ = (stash.rows.centredSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent) * (suffix?.query ?? 1);
     // δk_j = c·Σ_i p_ij·(δo_i·ṽ_j)·q_i: two rows i ≠ i' of one sample pair by E[δo_i·δo_i']·E[q_i·q_i'], the head
     // gradients' and the queries' position correlations (nothing cancels the part all queries share), so besides the
     // Σ_i p_ij² of independent rows the column adds ρ_o·ρ_q·(a_j² − Σ_i p_ij²), a_j = Σ_i p_ij (own algebra)
     const rowPairs = positionCorrelationOf(heads) * positionCorrelationOf(stash.query);
-    const keyColumn = stash.rows.centredSquares + rowPairs * Math.max(columnSquares - stash.rows.sumSquares, 0);
+    const keyColumn = stash.rows.centredSquares * (suffix?.key ?? 1) + rowPairs * Math.max(columnSquares - stash.rows.sumSquares, 0);
     const keyQ = keyColumn * d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.query.q;
     const zeroMasked = spec.causal ? (P - 1) / (2 * P) : 0;
     const g = (q: number, zeroFraction = 0): Gradient => ({ q, zeroFraction, shape: "gaussian", logVar: heads.logVar });
@@ -567,8 +574,11 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
       );
       const valueFactor = factor(
         headsQ > 0 ? valueQ / headsQ : 0,
-        () => `attention value: (1 − ρ)·Σ_i p_ij² + ρ·mean a_j² = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)} with mean a_j² = ${fmt(columnSquares)}`,
-        AVERAGE_SOURCE,
+        () =>
+          suffix !== undefined
+            ? `attention value (causal): Σ_t S_t·C_tt + Σ_(t≠t') C_tt'/max(t, t') over P = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)}, the head gradients' C taken as a pre-norm stream and causal averages above leave them`
+            : `attention value: (1 − ρ)·Σ_i p_ij² + ρ·mean a_j² = ${fmt(headsQ > 0 ? valueQ / headsQ : 0)} with mean a_j² = ${fmt(columnSquares)}`,
+        suffix !== undefined ? SUFFIX_SOURCE : AVERAGE_SOURCE,
       );
       const inputFactor = factor(headsQ > 0 ? inputQ / headsQ : 0, () => `attention input: value path Σp²·fan_out·var_w plus query and key paths = ${fmt(headsQ > 0 ? inputQ / headsQ : 0)}`, SOURCES.backward);
       return {

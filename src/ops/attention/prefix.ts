@@ -19,10 +19,12 @@
 
 import { findRootBracketed } from "../../numeric/roots.js";
 
-/** A causal layer's rows: Σ_s p_ts² and the tilt's excess τ_t − Σ_s p_ts², index t − 1. */
+/** A causal layer's rows: Σ_s p_ts², the tilt's excess τ_t − Σ_s p_ts² and E[S + S² − 2Σp³], index t − 1. */
 export interface CausalRows {
   sumSquares: Float64Array;
   tiltExcess: Float64Array;
+  /** what the softmax Jacobian leaves of row t (SoftmaxRowMoments.centred); absent, the query and key rows are not reweighed */
+  centred?: Float64Array;
 }
 
 /** What a causal average makes of values whose positions correlate as the model above has it. */
@@ -171,6 +173,14 @@ export interface SuffixGradient {
   value: number;
   /** mean over positions s ≠ s' of E[δv_s·δv_s']/E[δo²] */
   pairs: number;
+  /**
+   * the query gradient's rows, Σ_t C_tt·(c_t + (1 − S_t)/W) over Σ_t (c_t + (1 − S_t)/W): δq_t weighs row t's own
+   * head gradient, of mean square C_tt (in units of the mean), by what its softmax Jacobian leaves, c_t = E[S_t + S_t² −
+   * 2Σp³] and the key pairs' (1 − S_t)/W, W their pair width (own algebra); 1 without the rows' c_t
+   */
+  query: number;
+  /** the key gradient's independent rows, Σ_t C_tt·c_t over Σ_t c_t (each row's δs_t·q_t, as the query's) */
+  key: number;
 }
 
 const suffixMemos = new WeakMap<CausalRows, Map<string, SuffixGradient>>();
@@ -180,24 +190,40 @@ const suffixMemos = new WeakMap<CausalRows, Map<string, SuffixGradient>>();
  * samples share; as prefixAverage) and whose head gradients correlate by `gradientPosition` on average over positions,
  * of which `gradientFlat` samples share.
  */
-export function suffixGradient(rows: CausalRows, width: number, flat: number, position: number, gradientFlat: number, gradientPosition: number): SuffixGradient {
+export function suffixGradient(
+  rows: CausalRows,
+  width: number,
+  flat: number,
+  position: number,
+  gradientFlat: number,
+  gradientPosition: number,
+  pairWidth: number,
+): SuffixGradient {
   let memo = suffixMemos.get(rows);
   if (memo === undefined) {
     memo = new Map();
     suffixMemos.set(rows, memo);
   }
-  const key = `${width}|${flat}|${position}|${gradientFlat}|${gradientPosition}`;
+  const key = `${width}|${flat}|${position}|${gradientFlat}|${gradientPosition}|${pairWidth}`;
   const hit = memo.get(key);
   if (hit !== undefined) return hit;
-  const result = suffix(rows, width, flat, position, gradientFlat, gradientPosition);
+  const result = suffix(rows, width, flat, position, gradientFlat, gradientPosition, pairWidth);
   if (memo.size > 256) memo.clear();
   memo.set(key, result);
   return result;
 }
 
-function suffix(rows: CausalRows, width: number, flat: number, position: number, gradientFlat: number, gradientPosition: number): SuffixGradient {
+function suffix(
+  rows: CausalRows,
+  width: number,
+  flat: number,
+  position: number,
+  gradientFlat: number,
+  gradientPosition: number,
+  pairWidth: number,
+): SuffixGradient {
   const P = rows.sumSquares.length;
-  if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0 };
+  if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0, query: 1, key: 1 };
   const allPairs = P * (P - 1);
   const { u, variances } = fit(rows, width, flat, position);
   // e_s, the norm's 1/rms² at s: γ_s² of the forward's kernel
@@ -262,5 +288,29 @@ function suffix(rows: CausalRows, width: number, flat: number, position: number,
   const value = (f * (sumSquares + 2 * (P - harmonic)) + (1 - f) * kernel) / P;
   // Σ_(t,t') C_tt' = P·(1 + (P − 1)·ρ) in units of E[δo²]
   const pairs = (P * (1 + (P - 1) * rho) - P * value) / allPairs;
-  return { value, pairs };
+  let query = 1;
+  let key = 1;
+  const centred = rows.centred;
+  if (centred !== undefined) {
+    // row t's own head gradient, f + (1 − f)·C_tt of the kernel's part, weighs what its softmax Jacobian leaves
+    const lambda = Number.isFinite(z) ? 1 / (a0 + z * a1) : 0;
+    let queryRows = 0;
+    let queryMean = 0;
+    let keyRows = 0;
+    let keyMean = 0;
+    for (let t = 1; t <= P; t++) {
+      const et = e[t - 1] as number;
+      const kernelRow = Number.isFinite(z) ? lambda * et * (1 + z * (R[t - 1] as number)) : (et * (R[t - 1] as number)) / a1;
+      const C = f + (1 - f) * kernelRow;
+      const ct = centred[t - 1] as number;
+      const spread = ct + (1 - (rows.sumSquares[t - 1] as number)) / Math.max(pairWidth, 1e-12);
+      queryRows += C * spread;
+      queryMean += spread;
+      keyRows += C * ct;
+      keyMean += ct;
+    }
+    query = queryMean > 0 ? queryRows / queryMean : 1;
+    key = keyMean > 0 ? keyRows / keyMean : 1;
+  }
+  return { value, pairs, query, key };
 }
