@@ -200,7 +200,8 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
     let centred = 0;
     let slope = 0;
     let tilt = 0;
-    const causalRows: CausalRows = { sumSquares: new Float64Array(positions), tiltExcess: new Float64Array(positions), centred: new Float64Array(positions) };
+    const centredRows = new Float64Array(positions);
+    const causalRows: CausalRows = { sumSquares: new Float64Array(positions), tiltExcess: new Float64Array(positions), centred: centredRows };
     for (let i = 0; i < positions; i++) {
       const row = rows[i] as SoftmaxRowMoments;
       total += row.sumSquares;
@@ -209,7 +210,7 @@ export function attentionRowSums(positions: number, causal: boolean, s2: number)
       tilt += row.tilt - row.sumSquares;
       causalRows.sumSquares[i] = row.sumSquares;
       causalRows.tiltExcess[i] = row.tilt - row.sumSquares;
-      causalRows.centred![i] = row.centred;
+      centredRows[i] = row.centred;
     }
     const unmasked = (positions * (positions + 1)) / 2;
     result = {
@@ -465,13 +466,13 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // Σ_(j≠j') a_j·a_j' = P² − Σ_j a_j² (own algebra)
     const headsPositionShared = headsQ * heads.positionCorrelation;
     const columnSquares = spec.causal ? causalColumnSquares(P) : 1;
-    // under a causal mask δv_s sums the later positions' δo, whose size and pairs are taken as a pre-norm stack and causal
-    // averages above leave them (suffixGradient)
     const inWidth = layer.input.layout === "features" ? layer.input.features : 1;
     // (x̃_j·x̃_j')² has mean tr(Σ̃²) = D·E[x̃²]²·(1 + (D − 1)·E[Cov(x_a, x_b)²]/E[x̃²]²) for input features that covary
     // (featureCovariance, in units of E[x²]², and E[x̃²] = E[x²]·(1 − ρ)): a narrow layer below fills fewer directions (own algebra)
     const inputApart = 1 - positionCorrelationOf(stash.input);
     const pairWidth = inWidth / (1 + ((inWidth - 1) * (stash.input.featureCovariance ?? 0)) / Math.max(inputApart * inputApart, 1e-12));
+    // under a causal mask δv_s sums the later positions' δo, whose size and pairs are taken as a pre-norm stack and causal
+    // averages above leave them (suffixGradient)
     const valueSignalShared = stash.value.shared ?? 0;
     const suffix =
       stash.rows.causalRows !== undefined && stash.value.q > 0 && headsQ > 0
@@ -506,7 +507,7 @@ export const attentionRule: AnalyticRule<AttentionStash> = {
     // δo_n·δo_m (own algebra)
     const queryScale = d * stash.scale2 * headsQ * stash.value.q * valueApart * stash.key.q * keyApart;
     const queryCoherent = queryScale / pairWidth;
-    // under a causal mask row by row: its head gradient's size and its prefix's deviations (suffixGradient)
+    // under a causal mask row t's own head gradient, larger or smaller than the mean, weighs its row (suffixGradient)
     const queryQ = (stash.rows.centredSquares * queryScale + (1 - stash.rows.sumSquares) * queryCoherent) * (suffix?.query ?? 1);
     // δk_j = c·Σ_i p_ij·(δo_i·ṽ_j)·q_i: two rows i ≠ i' of one sample pair by E[δo_i·δo_i']·E[q_i·q_i'], the head
     // gradients' and the queries' position correlations (nothing cancels the part all queries share), so besides the
