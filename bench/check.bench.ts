@@ -67,6 +67,25 @@ describe("1,000-layer dense + ReLU spec", () => {
   });
 });
 
+describe("a long causal decoder", () => {
+  // transformer-encoder's blocks made causal, 24 of them over 8,192 tokens: its softmax rows of every length 1 … 8,192
+  // (src/numeric/softmax.ts) were most of such a check; the token table's std moves by 1e-6 per call, so no memoised
+  // row set or law serves it
+  const text = readFileSync("specs/transformer-encoder.yaml", "utf8")
+    .replace("tokens: 256", "tokens: 8192")
+    .replace("causal: false", "causal: true")
+    .replace("times: 6", "times: 24");
+  const parsed = parseSpec(text, "long-decoder.yaml");
+  if (!parsed.ok) throw new Error("the long decoder does not load");
+  const decoder = parsed.spec;
+  let variant = 0;
+  bench("check, 24 causal blocks over 8,192 tokens, a new variant each call", () => {
+    variant += 1;
+    const layers = decoder.layers.map((layer, i) => (i === 0 && layer.family === "embedding" ? { ...layer, init: { ...layer.init, std: 0.02 * (1 + variant * 1e-6) } } : layer));
+    if (check({ ...decoder, layers }).tensors.length === 0) throw new Error("no tensors");
+  }, { iterations: 3, time: 0 });
+});
+
 describe("compare on one example", () => {
   const found = specs.find(([name]) => name === "deep-relu-he.yaml") ?? specs[0];
   if (found === undefined) throw new Error("no example specs");
