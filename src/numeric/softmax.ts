@@ -718,6 +718,9 @@ function betweenRows(rows: SoftmaxRowMoments[], grid: Int32Array): SoftmaxRowMom
     u[g] = Math.log(n);
   }
   const w = new Float64Array(POINTS);
+  // Π_{b≠a}(u_a − u_b) of the points from `lambdasAt` (they change only where n passes a grid length)
+  const lambdas = new Float64Array(POINTS);
+  let lambdasAt = -1;
   const out: SoftmaxRowMoments[] = [];
   let g = 0;
   for (let n = minKeys; n <= maxKeys; n++) {
@@ -728,13 +731,25 @@ function betweenRows(rows: SoftmaxRowMoments[], grid: Int32Array): SoftmaxRowMom
     }
     // grid[g − 1] < n < grid[g]: the points g − POINTS/2 … g + POINTS/2 − 1, shifted inside the grid
     const first = Math.min(Math.max(g - POINTS / 2, 0), points - POINTS);
-    const x = Math.log(n);
-    for (let a = 0; a < POINTS; a++) {
-      let weight = 1 / n;
-      const ua = u[first + a] as number;
-      for (let b = 0; b < POINTS; b++) if (b !== a) weight *= (x - (u[first + b] as number)) / (ua - (u[first + b] as number));
-      w[a] = weight;
+    // the Lagrange weights in barycentric form: λ_a/(x − u_a) over their sum (Berrut & Trefethen 2004, SIAM Review
+    // 46(3), eq. 4.2), λ_a = 1/Π_{b≠a}(u_a − u_b) (kept as the product); divided by n for the moment itself
+    if (first !== lambdasAt) {
+      for (let a = 0; a < POINTS; a++) {
+        const ua = u[first + a] as number;
+        let product = 1;
+        for (let b = 0; b < POINTS; b++) if (b !== a) product *= ua - (u[first + b] as number);
+        lambdas[a] = product;
+      }
+      lambdasAt = first;
     }
+    const x = Math.log(n);
+    let total = 0;
+    for (let a = 0; a < POINTS; a++) {
+      const weight = 1 / ((lambdas[a] as number) * (x - (u[first + a] as number)));
+      w[a] = weight;
+      total += weight;
+    }
+    for (let a = 0; a < POINTS; a++) w[a] = (w[a] as number) / (total * n);
     let v0 = 0;
     let v1 = 0;
     let v2 = 0;
@@ -765,6 +780,7 @@ function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: n
   const pairZ = zy * zy;
   let power = minKeys === 1 ? 1 : l0 ** (minKeys - 1); // L_0^(n−1)
   let previous = minKeys === 1 ? 0 : l0 ** (minKeys - 2); // L_0^(n−2), none for n = 1
+  const logL0 = Math.log(l0);
   // the powers carried from one length of the grid to the next: by a product per length (every length of the first
   // EXACT_ROWS), by l0 to the gap past them
   for (let g = 0; g < grid.length; g++) {
@@ -777,13 +793,15 @@ function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: n
     s5[g] = (s5[g] as number) + zzyy * power;
     s6[g] = (s6[g] as number) + pairZ * previous;
     const gap = g + 1 < grid.length ? (grid[g + 1] as number) - (grid[g] as number) : 1;
-    if (gap === 1) {
-      previous = power;
+    if (gap === 1 || !(l0 > 0)) {
+      // L_0 = 0 leaves 0 past one length either way
+      previous = gap === 1 ? power : 0;
       power *= l0;
     } else {
-      const factor = l0 ** gap;
-      previous = power * l0 ** (gap - 1);
-      power *= factor;
+      // L_0^(gap − 1) and L_0^gap from one exponential
+      const factor = Math.exp((gap - 1) * logL0);
+      previous = power * factor;
+      power = previous * l0;
     }
   }
 }
