@@ -85,6 +85,24 @@ interface PrefixFit {
   prefix: Float64Array;
 }
 
+const fits = new WeakMap<CausalRows, Map<string, PrefixFit>>();
+
+/** fit, memoised: the backward's value gradient reads the forward's fit of the same rows and values (its arrays are only read) */
+function fitted(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
+  let memo = fits.get(rows);
+  if (memo === undefined) {
+    memo = new Map();
+    fits.set(rows, memo);
+  }
+  const key = `${width}|${flat}|${position}`;
+  const hit = memo.get(key);
+  if (hit !== undefined) return hit;
+  const result = fit(rows, width, flat, position);
+  if (memo.size > 256) memo.clear();
+  memo.set(key, result);
+  return result;
+}
+
 function fit(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
   const P = rows.sumSquares.length;
   const D = Math.max(width, 1);
@@ -115,7 +133,7 @@ function average(rows: CausalRows, width: number, flat: number, position: number
   const P = rows.sumSquares.length;
   const D = Math.max(width, 1);
   const allPairs = P * (P - 1);
-  const { u, f, variances, prefix } = fit(rows, width, flat, position);
+  const { u, f, variances, prefix } = fitted(rows, width, flat, position);
   // heads: row t keeps S_t + ρ_t·(1 − S_t) + (1 − ρ_t)·τ_t/D with ρ_t = f + (1 − f)·k̄_t, k̄_t = O_t/(t(t − 1))
   let heads = 0;
   // rows t ≠ t': Σ_(s≤t, s'≤t', s≠s') k(s, s')/(t·t') summed over all t, t' is Σ_(s≠s') k(s, s')·a_s·a_s' with
@@ -225,7 +243,7 @@ function suffix(
   const P = rows.sumSquares.length;
   if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0, query: 1, key: 1 };
   const allPairs = P * (P - 1);
-  const { u, variances } = fit(rows, width, flat, position);
+  const { u, variances } = fitted(rows, width, flat, position);
   // e_s, the norm's 1/rms² at s: γ_s² of the forward's kernel
   const e = new Float64Array(P);
   for (let s = 0; s < P; s++) e[s] = 1 / (1 - u + u * (variances[s] as number));
