@@ -59,21 +59,34 @@ function prefixSums(variances: Float64Array, u: number, prefix: Float64Array): v
  */
 export function prefixAverage(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
   // the start pass runs again for the ledgers with the same numbers (memoised by the rows, which attentionRowSums keeps)
-  let memo = memos.get(rows);
+  return memoised(averages, rows, width, flat, position, average);
+}
+
+const averages = new WeakMap<CausalRows, Map<string, PrefixAverage>>();
+
+// `make`'s result for a row set and its arguments, kept per row set (a WeakMap on the rows attentionRowSums keeps), at
+// most 257 argument sets a row set
+function memoised<T>(
+  store: WeakMap<CausalRows, Map<string, T>>,
+  rows: CausalRows,
+  width: number,
+  flat: number,
+  position: number,
+  make: (rows: CausalRows, width: number, flat: number, position: number) => T,
+): T {
+  let memo = store.get(rows);
   if (memo === undefined) {
     memo = new Map();
-    memos.set(rows, memo);
+    store.set(rows, memo);
   }
   const key = `${width}|${flat}|${position}`;
   const hit = memo.get(key);
   if (hit !== undefined) return hit;
-  const result = average(rows, width, flat, position);
+  const result = make(rows, width, flat, position);
   if (memo.size > 256) memo.clear();
   memo.set(key, result);
   return result;
 }
-
-const memos = new WeakMap<CausalRows, Map<string, PrefixAverage>>();
 
 /** The model's weight u = w/(1 + w) of the causal averages, with the share f every pair has alike, fitted to a mean. */
 interface PrefixFit {
@@ -89,18 +102,7 @@ const fits = new WeakMap<CausalRows, Map<string, PrefixFit>>();
 
 /** fit, memoised: the backward's value gradient reads the forward's fit of the same rows and values (its arrays are only read) */
 function fitted(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
-  let memo = fits.get(rows);
-  if (memo === undefined) {
-    memo = new Map();
-    fits.set(rows, memo);
-  }
-  const key = `${width}|${flat}|${position}`;
-  const hit = memo.get(key);
-  if (hit !== undefined) return hit;
-  const result = fit(rows, width, flat, position);
-  if (memo.size > 256) memo.clear();
-  memo.set(key, result);
-  return result;
+  return memoised(fits, rows, width, flat, position, fit);
 }
 
 function fit(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
