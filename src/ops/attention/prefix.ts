@@ -59,30 +59,22 @@ function prefixSums(variances: Float64Array, u: number, prefix: Float64Array): v
  */
 export function prefixAverage(rows: CausalRows, width: number, flat: number, position: number): PrefixAverage {
   // the start pass runs again for the ledgers with the same numbers (memoised by the rows, which attentionRowSums keeps)
-  return memoised(averages, rows, width, flat, position, average);
+  return memoised(averages, rows, `${width}|${flat}|${position}`, () => average(rows, width, flat, position));
 }
 
 const averages = new WeakMap<CausalRows, Map<string, PrefixAverage>>();
 
-// `make`'s result for a row set and its arguments, kept per row set (a WeakMap on the rows attentionRowSums keeps), at
-// most 257 argument sets a row set
-function memoised<T>(
-  store: WeakMap<CausalRows, Map<string, T>>,
-  rows: CausalRows,
-  width: number,
-  flat: number,
-  position: number,
-  make: (rows: CausalRows, width: number, flat: number, position: number) => T,
-): T {
+// `make`'s result for a row set and the arguments `key` writes, kept per row set (a WeakMap on the rows
+// attentionRowSums keeps), at most 257 argument sets a row set
+function memoised<T>(store: WeakMap<CausalRows, Map<string, T>>, rows: CausalRows, key: string, make: () => T): T {
   let memo = store.get(rows);
   if (memo === undefined) {
     memo = new Map();
     store.set(rows, memo);
   }
-  const key = `${width}|${flat}|${position}`;
   const hit = memo.get(key);
   if (hit !== undefined) return hit;
-  const result = make(rows, width, flat, position);
+  const result = make();
   if (memo.size > 256) memo.clear();
   memo.set(key, result);
   return result;
@@ -102,7 +94,7 @@ const fits = new WeakMap<CausalRows, Map<string, PrefixFit>>();
 
 /** fit, memoised: the backward's value gradient reads the forward's fit of the same rows and values (its arrays are only read) */
 function fitted(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
-  return memoised(fits, rows, width, flat, position, fit);
+  return memoised(fits, rows, `${width}|${flat}|${position}`, () => fit(rows, width, flat, position));
 }
 
 function fit(rows: CausalRows, width: number, flat: number, position: number): PrefixFit {
@@ -219,18 +211,8 @@ export function suffixGradient(
   gradientPosition: number,
   pairWidth: number,
 ): SuffixGradient {
-  let memo = suffixMemos.get(rows);
-  if (memo === undefined) {
-    memo = new Map();
-    suffixMemos.set(rows, memo);
-  }
   const key = `${width}|${flat}|${position}|${gradientFlat}|${gradientPosition}|${pairWidth}`;
-  const hit = memo.get(key);
-  if (hit !== undefined) return hit;
-  const result = suffix(rows, width, flat, position, gradientFlat, gradientPosition, pairWidth);
-  if (memo.size > 256) memo.clear();
-  memo.set(key, result);
-  return result;
+  return memoised(suffixMemos, rows, key, () => suffix(rows, width, flat, position, gradientFlat, gradientPosition, pairWidth));
 }
 
 function suffix(
