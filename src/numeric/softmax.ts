@@ -691,6 +691,9 @@ function rowGrid(minKeys: number, maxKeys: number): Int32Array {
   return Int32Array.from(lengths);
 }
 
+// the points each row between the grid's lengths is interpolated through
+const POINTS = 6;
+
 /**
  * Every row length from the rows at the grid's lengths: those kept as they are, the lengths between by the quintic
  * through the six nearest grid rows of n·moment against ln n (each moment of n keys goes as 1/n or tends to a
@@ -698,14 +701,16 @@ function rowGrid(minKeys: number, maxKeys: number): Int32Array {
  * of the value where four points left up to 5e-7, test/ops/softmax-rows.test.ts against each length's own quadrature;
  * Lagrange interpolation, e.g. Abramowitz & Stegun 25.2.2).
  */
-const POINTS = 6;
 function betweenRows(rows: SoftmaxRowMoments[], grid: Int32Array): SoftmaxRowMoments[] {
   const minKeys = grid[0] as number;
   const maxKeys = grid[grid.length - 1] as number;
   const points = grid.length;
   // n·moment at the grid's lengths, field by field, and ln n
-  const fields = Array.from({ length: 5 }, () => new Float64Array(points));
-  const [squares, centred, slope, tilt, tiltMean] = fields as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];
+  const squares = new Float64Array(points);
+  const centred = new Float64Array(points);
+  const slope = new Float64Array(points);
+  const tilt = new Float64Array(points);
+  const tiltMean = new Float64Array(points);
   const u = new Float64Array(points);
   for (let g = 0; g < points; g++) {
     const n = grid[g] as number;
@@ -769,10 +774,9 @@ function betweenRows(rows: SoftmaxRowMoments[], grid: Int32Array): SoftmaxRowMom
   return out;
 }
 
-
 /**
- * One node of ln t of gaussianSoftmaxRows for every row length of the grid (rowGrid): the one-class transforms A_2, A_3, A_4, E[z·y·e^(−y)]
- * and E[z²·y²·e^(−y)], weighted by L_0^(n−1) (and L_0^(n−2) for the pairs), added into the running sums.
+ * One node of ln t of gaussianSoftmaxRows for every row length of the grid (rowGrid): the one-class transforms A_2,
+ * A_3, A_4, E[z·y·e^(−y)] and E[z²·y²·e^(−y)], weighted by L_0^(n−1) (and L_0^(n−2) for the pairs), added into the running sums.
  */
 function rowStep(sums: Float64Array[], l0: number, a2: number, a3: number, a4: number, zy: number, zzyy: number, minKeys: number, grid: Int32Array): void {
   const [s0, s1, s2, s3, s4, s5, s6] = sums as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];

@@ -967,8 +967,8 @@ function gradientSumSides(
   const counting = context.countOnly === true;
   const overflowFinding = Math.min(overflowAtRisk, t.overflowFails);
   if (counting) {
-    startOverflow = anyAboveAtMost(startSummed, startLevel, nonzeroElements(startSummed), overflowFinding / 2) ? 0 : probabilityAnyAbove(startSummed, startLevel);
-    if (sides) endOverflow = anyAboveAtMost(endSummed, endLevel, nonzeroElements(endSummed), overflowFinding / 2) ? 0 : probabilityAnyAbove(endSummed, endLevel);
+    startOverflow = countedOverflow(startSummed, startLevel, overflowFinding / 2);
+    if (sides) endOverflow = countedOverflow(endSummed, endLevel, overflowFinding / 2);
   } else if (!sides) {
     startOverflow = probabilityAnyAbove(startSummed, startLevel);
   } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
@@ -1001,24 +1001,18 @@ function gradientSumSides(
     const startLevelDivided = flushLevel(startDivided, block, scaling, limits, t);
     let startLost = Number.NaN;
     let endLost = Number.NaN;
-    let endLevelDivided = Number.NaN;
-    // the share lost is at most the divided gradients' share below the level (a finding past the lower threshold)
-    const flushFinding = Math.min(t.energyAtRisk, t.energyFails) / 2;
+    const endScaled = sides ? scaledIn(END_SCALED, endInput, lossScale) : startScaled;
+    const endDivided = sides ? scaledIn(END_DIVIDED, endScaled, 1 / workers) : startDivided;
+    const endLevelDivided = sides ? flushLevel(endDivided, block, scaling, limits, t) : Number.NaN;
+    // the share lost is at most the divided gradients' share below the level
     if (counting) {
+      // a finding past the lower threshold only
+      const flushFinding = Math.min(t.energyAtRisk, t.energyFails) / 2;
       startLost = energyBelowAtMost(startDivided, startLevelDivided, flushFinding) ? 0 : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
-      if (sides) {
-        const endScaled = scaledIn(END_SCALED, endInput, lossScale);
-        const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
-        endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
-        endLost = energyBelowAtMost(endDivided, endLevelDivided, flushFinding) ? 0 : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
-      }
+      if (sides) endLost = energyBelowAtMost(endDivided, endLevelDivided, flushFinding) ? 0 : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
     } else if (!sides) {
       startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
     } else {
-      const endScaled = scaledIn(END_SCALED, endInput, lossScale);
-      const endDivided = scaledIn(END_DIVIDED, endScaled, 1 / workers);
-      endLevelDivided = flushLevel(endDivided, block, scaling, limits, t);
-      // the share lost is at most the divided gradients' share below the level
       if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
         endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
         startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
@@ -1045,6 +1039,11 @@ function gradientSumSides(
     putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
       t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
   }
+}
+
+// a summed side's overflow probability where only its finding counts: 0 where the bound keeps it at most `bound`
+function countedOverflow(summed: MagnitudeProfile, level: number, bound: number): number {
+  return anyAboveAtMost(summed, level, nonzeroElements(summed), bound) ? 0 : probabilityAnyAbove(summed, level);
 }
 
 /**

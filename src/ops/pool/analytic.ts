@@ -10,7 +10,7 @@ import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
 import { NO_FACTORS, eulerShare, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
-import { INV_SQRT_2PI, normalCdf } from "../../numeric/normal.js";
+import { normalCdf, normalPdf } from "../../numeric/normal.js";
 import type { Text, AnalyticRule, BackwardResult, ChannelSpread, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 import { copiedUnit } from "../unit-pairs.js";
 
@@ -481,7 +481,7 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
     if (sigma > 0) {
       const r = m / sigma;
       const cdf = normalCdf(r);
-      const pdf = Math.exp(-0.5 * r * r) * INV_SQRT_2PI;
+      const pdf = normalPdf(r);
       const positiveSquare = (m * m + common) * cdf + m * sigma * pdf;
       q += w * (positiveSquare + a * a * (m * m + common - positiveSquare));
       mean += w * phiMean(m, sigma, a);
@@ -509,6 +509,8 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
     return value;
   };
   const result = { q, mean, off: Math.min(Math.max(1 - on, 0), 1), sampleShared: pair(between, position * within), positionShared: pair(common, 0) };
+  // a batch of specs meets many channel statistics: kept to the last 1,024
+  if (offsetCache.size >= 1024) offsetCache.clear();
   offsetCache.set(key, result);
   return result;
 }
@@ -520,7 +522,7 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
 function phiMean(m: number, s: number, a: number): number {
   if (!(s > 0)) return m > 0 ? m : a * m;
   const r = m / s;
-  const positive = m * normalCdf(r) + s * Math.exp(-0.5 * r * r) * INV_SQRT_2PI;
+  const positive = m * normalCdf(r) + s * normalPdf(r);
   return positive + a * (m - positive);
 }
 
@@ -547,16 +549,15 @@ function simpsonGrid(steps: number, density: (x: number) => number): { x: Float6
   return { x, weight };
 }
 
-const standardDensity = (x: number): number => Math.exp(-0.5 * x * x) * INV_SQRT_2PI;
 /** the shared part's standard normal, 80 steps of 0.2 */
-const OUTER = simpsonGrid(80, standardDensity);
+const OUTER = simpsonGrid(80, normalPdf);
 const offsetGrids = new Map<number, { z: Float64Array; weight: Float64Array }>();
 
 /** the maximum of k standard normals, density k·φ(z)·Φ(z)^(k−1), 160 steps of 0.1 */
 function offsetGrid(k: number): { z: Float64Array; weight: Float64Array } {
   const hit = offsetGrids.get(k);
   if (hit !== undefined) return hit;
-  const g = simpsonGrid(160, (z) => k * standardDensity(z) * Math.pow(normalCdf(z), k - 1));
+  const g = simpsonGrid(160, (z) => k * normalPdf(z) * Math.pow(normalCdf(z), k - 1));
   const grid = { z: g.x, weight: g.weight };
   offsetGrids.set(k, grid);
   return grid;
