@@ -13,6 +13,7 @@ import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProb
 import { checkedFormats, judgePrediction, planFor, worseVerdict, type AppliedLossScale, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence, scaleWords } from "./risk/words.js";
+import { judgePredictionAgain } from "./risk/judge.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
 import { scaledFindings, weighPick } from "./scale/pick.js";
 import { loadSpec, positionIssues, type SpecIssue, type SpecPosition } from "./spec/index.js";
@@ -139,12 +140,14 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // with no scale given, gradients are judged at their window's pick even when 1 also lies inside it: a larger scale
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
   // scale wins over the windows in the judgement)
-  const judgeAtPicks = () => judgePrediction(planned, prediction, answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
-  let judged = judgeAtPicks();
+  const atPicks = (): CheckOptions => (answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
+  let judged = judgePrediction(planned, prediction, atPicks());
   const weighed = weighedAnswers(planned, prediction, answers, judged, options);
   answers = weighed.answers;
-  // a pick moved: the gradients are judged again at it (a given scale is judged as it was)
-  if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) judged = judgeAtPicks();
+  // a pick moved: the gradients are judged again at it (a given scale is judged as it was), what no scale moves kept
+  if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) {
+    judged = judgePredictionAgain(judged, planned, prediction, atPicks());
+  }
   judged = withSearchedWindows(judged, plan, answers);
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
   const stateHazards = judged.hazards

@@ -353,6 +353,21 @@ export function storedTensors(prediction: Prediction, plan: PrecisionPlan): read
  * prediction step; it lets a caller judge a prediction it made or adjusted itself.
  */
 export function judgePrediction(spec: NetworkSpec, prediction: Prediction, options: CheckOptions = {}): CheckResult {
+  return judged(spec, prediction, options, undefined);
+}
+
+/**
+ * {@link judgePrediction} at other loss scales than an earlier judgement `earlier` of the same spec, prediction and
+ * options (the same formats, thresholds and output options; only the windows' picks differ, as when check's weighed
+ * pick moves): what no loss scale moves — the tensors of roles the scale does not multiply (activations, weights: a
+ * factor of 1 at every scale, lossScaleFactor) and the operation sites that are not scaled ({@link isScaledSite}) — is
+ * taken from `earlier` as judged there, the rest judged afresh. The result is the one judgePrediction gives.
+ */
+export function judgePredictionAgain(earlier: CheckResult, spec: NetworkSpec, prediction: Prediction, options: CheckOptions): CheckResult {
+  return judged(spec, prediction, options, earlier);
+}
+
+function judged(spec: NetworkSpec, prediction: Prediction, options: CheckOptions, earlier: CheckResult | undefined): CheckResult {
   const plan = spec.precision;
   const thresholds = thresholdsOf(options.thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...options.thresholds });
   // a bad loss scale is reported before an unknown format, as it always was
@@ -362,13 +377,13 @@ export function judgePrediction(spec: NetworkSpec, prediction: Prediction, optio
   const scales = settingScales(given, settings, options);
   for (let i = 0; i < settings.length; i++) (settings[i] as FormatSetting).lossScale = (scales[i] as AppliedLossScale).value;
   const lossScale = scales[0] as AppliedLossScale;
-  const tensors = judgeTensors(storedTensors(prediction, plan), settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true);
+  const tensors = judgeTensors(storedTensors(prediction, plan), settings, lossScale.value, thresholds, options.everyFormat === true, options.ledger === true, earlier?.tensors);
   const allWeightGradients = weightGradientsOf(prediction);
   // only Adam's epsilon count reads them: as its states see them, clipped
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
   const training = trainingSites(spec, prediction, allWeightGradients, weightGradients);
   const contexts = hazardContexts(spec, settings, thresholds, weightGradients);
-  const hazards = judgeSites(prediction.hazards, training, settings, contexts, spec, lossScale.value, thresholds, weightGradients);
+  const hazards = judgeSites(prediction.hazards, training, settings, contexts, spec, lossScale.value, thresholds, weightGradients, earlier?.hazards);
   const formatChecks: FormatCheck[] = [];
   const sums = gradientContributions(spec.training) > 1;
   let verdict: Verdict = "fits";
@@ -573,13 +588,37 @@ function judgeTensors(
   thresholds: RiskThresholds,
   everyFormat: boolean,
   ledger: boolean,
+  earlier: readonly TensorCheck[] | undefined,
 ): TensorCheck[] {
   const tensors: TensorCheck[] = [];
   const arrays = storedArrays(predicted);
   // each format's findings and count gathered by judgeTensor, in tensor order, rather than by a walk over every tensor
   // per format
-  for (let i = 0; i < predicted.length; i++) tensors.push(judgeTensor(predicted[i] as TensorPrediction, settings, lossScale, thresholds, everyFormat, arrays, ledger, true));
+  for (let i = 0; i < predicted.length; i++) {
+    const tensor = predicted[i] as TensorPrediction;
+    const before = earlier?.[i];
+    // a tensor no scale multiplies, judged alone (not with the parts of a stored array), is what it was
+    if (before instanceof CheckedTensor && before.id === tensor.id && lossScaleFactor(tensor.role, 2) === 1 && arrays?.has(tensor.id) !== true) {
+      gatherFindings(before, tensor, settings, everyFormat);
+      tensors.push(before);
+    } else {
+      tensors.push(judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays, ledger, true));
+    }
+  }
   return tensors;
+}
+
+// what judgeTensor's `gather` adds to each setting for a tensor judged before
+function gatherFindings(checked: CheckedTensor, tensor: TensorPrediction, settings: readonly FormatSetting[], everyFormat: boolean): void {
+  const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+  for (let i = 0; i < settings.length; i++) {
+    const setting = settings[i] as FormatSetting;
+    const judged = entryFormat(setting.evaluated, entry) === setting.format;
+    if (!judged && !everyFormat) continue;
+    const found = CheckedTensor.findingsIn(checked, setting.format);
+    for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
+    if (judged) setting.tensorsJudged++;
+  }
 }
 
 /** Per tensor that shares its stored array with others (`partOf`), every part of that array; null when none does. */
@@ -727,16 +766,21 @@ function judgeSites(
   lossScale: number,
   thresholds: RiskThresholds,
   weightGradients: readonly TensorPrediction[],
+  earlier: readonly HazardCheck[] | undefined,
 ): HazardCheck[] {
   const hazards: HazardCheck[] = [];
-  if (oneContext(settings)) {
-    const context = contexts[0] as HazardContext;
-    for (let i = 0; i < sites.length; i++) hazards.push(judgeSiteOnce(sites[i] as HazardSite, "prediction", settings, context));
-    for (let i = 0; i < training.length; i++) hazards.push(judgeSiteOnce(training[i] as HazardSite, "training setup", settings, context));
-    return hazards;
-  }
-  for (let i = 0; i < sites.length; i++) hazards.push(judgeSite(sites[i] as HazardSite, "prediction", settings, contexts, spec, lossScale, thresholds, weightGradients));
-  for (let i = 0; i < training.length; i++) hazards.push(judgeSite(training[i] as HazardSite, "training setup", settings, contexts, spec, lossScale, thresholds, weightGradients));
+  const one = oneContext(settings);
+  // the earlier judgement's check of a site no scale moves serves as it is (the sites come in the same order)
+  const reusable = earlier !== undefined && earlier.length === sites.length + training.length ? earlier : undefined;
+  const judge = (site: HazardSite, origin: HazardCheck["origin"], at: number): HazardCheck => {
+    const before = reusable?.[at];
+    if (before !== undefined && !isScaledSite(site.kind, site.gradient) && before.kind === site.kind && before.origin === origin) return before;
+    return one
+      ? judgeSiteOnce(site, origin, settings, contexts[0] as HazardContext)
+      : judgeSite(site, origin, settings, contexts, spec, lossScale, thresholds, weightGradients);
+  };
+  for (let i = 0; i < sites.length; i++) hazards.push(judge(sites[i] as HazardSite, "prediction", i));
+  for (let i = 0; i < training.length; i++) hazards.push(judge(training[i] as HazardSite, "training setup", sites.length + i));
   return hazards;
 }
 
