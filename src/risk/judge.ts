@@ -482,7 +482,7 @@ export function judgeScaled(
       continue;
     }
     // the findings alone: the tensor's risk objects are not made
-    for (const f of CheckedTensor.findingsIn(judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays), format)) {
+    for (const f of CheckedTensor.findingsIn(judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays, false, false, true), format)) {
       if (!visit(f, i, false)) return;
     }
   }
@@ -664,11 +664,12 @@ function judgeTensor(
   arrays: Map<string, TensorPrediction[]> | null,
   ledger = false,
   gather = false,
+  counted = false,
 ): CheckedTensor {
   const parts = arrays?.get(tensor.id);
   // a part of a stored array is judged with the array's max, which its statistics carry: worked out here
   let scaled = parts === undefined ? undefined : withArrayMax(scaledTensor(tensor, lossScale, thresholds), parts, tensor, thresholds);
-  const checked = new CheckedTensor(tensor, lossScale, thresholds, scaled, ledger);
+  const checked = new CheckedTensor(tensor, lossScale, thresholds, scaled, ledger, counted);
   const factor = lossScaleFactor(tensor.role, lossScale);
   const same = sameDistribution(tensor.start, tensor.end);
   // the profiles the bounds read, after the loss-scale factor (made when a format first needs them)

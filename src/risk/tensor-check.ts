@@ -91,9 +91,11 @@ export class CheckedTensor implements TensorCheck {
   /**
    * `scaled`: the tensor's scaled profiles and statistics when already worked out (else worked out when first read,
    * as scaledTensor(tensor, lossScale, thresholds)); `ledger`: whether the result keeps the tensor's ledger. The risks
-   * and verdict are set by the caller.
+   * and verdict are set by the caller. `counted`: only its findings will be read ({@link CheckedTensor.findingsIn}; a
+   * weighed loss scale's count), so the object never reaches a result and its two accessors, each a runtime call to set
+   * up, are not.
    */
-  constructor(tensor: TensorPrediction, lossScale: number, thresholds: RiskThresholds, scaled: ScaledTensor | undefined, ledger: boolean) {
+  constructor(tensor: TensorPrediction, lossScale: number, thresholds: RiskThresholds, scaled: ScaledTensor | undefined, ledger: boolean, counted = false) {
     this.#tensor = tensor;
     this.#lossScale = lossScale;
     this.#thresholds = thresholds;
@@ -122,9 +124,11 @@ export class CheckedTensor implements TensorCheck {
     this.start = tensor.start;
     this.end = tensor.end;
     if (ledger) this.ledger = tensor.ledger;
-    if (scaled === undefined) Object.defineProperty(this, "statistics", STATISTICS);
-    else this.statistics = scaled.statistics;
-    Object.defineProperty(this, "risks", RISKS);
+    if (!counted) {
+      if (scaled === undefined) Object.defineProperty(this, "statistics", STATISTICS);
+      else this.statistics = scaled.statistics;
+      Object.defineProperty(this, "risks", RISKS);
+    }
     this.verdict = "fits";
   }
 
