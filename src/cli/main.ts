@@ -1,3 +1,5 @@
+import { realpathSync } from "node:fs";
+import { pathToFileURL } from "node:url";
 import { Command, CommanderError } from "commander";
 import { didYouMean } from "../spec/issues.js";
 import { OutputError, UserError, EXIT, takeExitCode } from "./errors.js";
@@ -185,4 +187,22 @@ function reportError(error: unknown): number {
 
 function isBrokenPipe(error: unknown): boolean {
   return typeof error === "object" && error !== null && (error as { code?: unknown }).code === "EPIPE";
+}
+
+// Run as a script too (`node dist/cli/main.js check SPEC`, as a contributor may try): bin/headroom.js imports main and
+// calls it itself, so only a process whose own script is this file runs it here.
+if (isEntry(import.meta.url)) {
+  void main(process.argv).then((code) => {
+    process.exitCode = code;
+  });
+}
+
+function isEntry(url: string): boolean {
+  const script = process.argv[1];
+  if (script === undefined) return false;
+  try {
+    return url === pathToFileURL(realpathSync(script)).href;
+  } catch {
+    return false;
+  }
 }

@@ -1,3 +1,4 @@
+import { spawnSync } from "node:child_process";
 import { describe, expect, it } from "vitest";
 import { runCli } from "../helpers/run.js";
 
@@ -15,5 +16,14 @@ describe("headroom (the built binary)", () => {
     expect(run.stderr).toBe('headroom: unknown command "no-such-command"; see headroom --help\n');
     expect(run.stdout).toBe("");
     expect(run.stderr).not.toMatch(/\n\s+at /);
+  });
+
+  it("runs when dist/cli/main.js is the script itself, once", () => {
+    const run = spawnSync(process.execPath, ["dist/cli/main.js", "--version"], { encoding: "utf8" });
+    const viaBin = runCli(["--version"]);
+    expect(run.status).toBe(0);
+    expect(run.stdout).toBe(viaBin.stdout);
+    expect(run.stdout.trim()).toMatch(/^\d+\.\d+\.\d+/);
+    expect(run.stderr).toBe("");
   });
 });
