@@ -128,6 +128,7 @@ export function gradientCopy(g: Gradient): Gradient {
     crossCorrelation: g.crossCorrelation,
     allZero: g.allZero,
     windowMaximum: g.windowMaximum,
+    windowGate: g.windowGate,
     reluGated: g.reluGated,
   };
 }

@@ -108,6 +108,13 @@ export interface Signal {
   rectifier?: { slope: number; preQ: number };
 }
 
+/** A max pool's windows over a rectifier's output whose channels' means differ: see Gradient.windowGate. */
+export interface WindowGate {
+  off: number;
+  bothOnSamples: number;
+  bothOnPositions: number;
+}
+
 /**
  * A rectifier's per-channel input: the channel's mean μ_c ~ N(0, between) over channels (a convolution of a
  * nonzero-mean input), the spread `within` about it, and the negative-side slope (0 for a ReLU).
@@ -187,6 +194,12 @@ export interface Gradient {
    * rectifier just before the pool sees the derivative at the window's maximum, not at a random element
    */
   windowMaximum?: number;
+  /**
+   * set with windowMaximum where the pool worked it out from its input's channel means (a rectifier on a convolution of
+   * a nonzero-mean input, whose channels sit apart): the chance that all k inputs of a window are off, and that the
+   * maxima of two windows of one channel are both on, in two samples and in one. Absent: those of independent inputs
+   */
+  windowGate?: WindowGate;
   /**
    * set by max-pool's backward, or by a ReLU or leaky ReLU with no max pool above it where the loss's curvature is not
    * carried, and kept by the positively homogeneous activations below a max pool (ReLU, leaky ReLU): E[S²]

@@ -27,9 +27,9 @@ describe("max of a window about its channel's mean (maxOfOffsetWindows)", () => 
       for (let i = 0; i < k; i++) best = Math.max(best, base + Math.sqrt((1 - position) * within) * random.normal());
       return best;
     };
-    const keys = ["q", "mean", "off", "sampleShared", "positionShared"] as const;
-    const sums = { q: 0, mean: 0, off: 0, sampleShared: 0, positionShared: 0 };
-    const squares = { q: 0, mean: 0, off: 0, sampleShared: 0, positionShared: 0 };
+    const keys = ["q", "mean", "off", "sampleShared", "positionShared", "sampleOn", "positionOn"] as const;
+    const sums = { q: 0, mean: 0, off: 0, sampleShared: 0, positionShared: 0, sampleOn: 0, positionOn: 0 };
+    const squares = { q: 0, mean: 0, off: 0, sampleShared: 0, positionShared: 0, sampleOn: 0, positionOn: 0 };
     for (let c = 0; c < channels; c++) {
       // one channel: two samples (each with its own common part) and a second window of the first sample
       const mu = Math.sqrt(between) * random.normal();
@@ -38,7 +38,15 @@ describe("max of a window about its channel's mean (maxOfOffsetWindows)", () => 
       const a = windowMax(u1);
       const b = windowMax(u2);
       const c2 = windowMax(u1);
-      const values = { q: phi(a) ** 2, mean: phi(a), off: a <= 0 ? 1 : 0, sampleShared: phi(a) * phi(b), positionShared: phi(a) * phi(c2) };
+      const values = {
+        q: phi(a) ** 2,
+        mean: phi(a),
+        off: a <= 0 ? 1 : 0,
+        sampleShared: phi(a) * phi(b),
+        positionShared: phi(a) * phi(c2),
+        sampleOn: a > 0 && b > 0 ? 1 : 0,
+        positionOn: a > 0 && c2 > 0 ? 1 : 0,
+      };
       for (const key of keys) {
         sums[key] += values[key];
         squares[key] += values[key] ** 2;
@@ -63,7 +71,7 @@ describe("max of a window about its channel's mean (maxOfOffsetWindows)", () => 
       const rule = maxOfOffsetWindows(k, { slope, between, within, position, q: 1 });
       const sampled = monteCarlo(k, between, within, position, slope, 20_241);
       // within four standard errors of the seeded Monte Carlo (the quadrature's own error is far smaller)
-      for (const key of ["q", "mean", "off", "sampleShared", "positionShared"] as const) {
+      for (const key of ["q", "mean", "off", "sampleShared", "positionShared", "sampleOn", "positionOn"] as const) {
         const { value, error } = sampled[key];
         expect(Math.abs(rule[key] - value), `${key}: rule ${rule[key].toFixed(4)}, sampled ${value.toFixed(4)} ± ${error.toFixed(4)}`).toBeLessThan(4 * error);
       }
@@ -73,6 +81,7 @@ describe("max of a window about its channel's mean (maxOfOffsetWindows)", () => 
   it("without channel means or a shared part it is the maximum of k independent ReLU inputs: off = (1/2)^k (order statistics)", () => {
     const rule = maxOfOffsetWindows(4, { slope: 0, between: 0, within: 1, position: 0, q: 1 });
     expect(rule.off).toBeCloseTo(1 / 16, 5);
+    expect(rule.sampleOn).toBeCloseTo((15 / 16) ** 2, 5);
   });
 });
 
@@ -115,5 +124,11 @@ describe("a max pool over a ReLU whose channels' means differ, against the float
   it("the head's pre-activation (−0.29 → −0.07), whose input held fewer nonzero elements than predicted", () => {
     const head = row("head/pre-activation");
     expect(Math.abs(head.differenceBinades), `head: ${head.differenceBinades.toFixed(3)}`).toBeLessThan(0.15);
+  });
+
+  it("the gradient below the ReLU gate at the windows' maxima: its zeros (0.766 → 0.807, measured 0.816) and rms below it (p1: −0.20 → −0.03)", () => {
+    const gate = row("c2/activation-gradient");
+    expect(Math.abs(gate.predictedZeroFraction - gate.measured.median.zeroFraction)).toBeLessThan(0.02);
+    for (const id of ["c2/activation-gradient", "p1/activation-gradient"]) expect(Math.abs(row(id).differenceBinades), `${id}: ${row(id).differenceBinades.toFixed(3)}`).toBeLessThan(0.1);
   });
 });

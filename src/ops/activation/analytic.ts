@@ -404,7 +404,8 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     // a max-pool after a rectifier passes its gradient to the window's maximum, which is on the positive side
     // unless all k inputs are off: P = off^k for independent inputs (max(φ(x)) = φ(max x) for increasing φ)
     const z = stash.input.zeroFraction;
-    const allOff = Math.pow(z + (1 - z) / 2, k);
+    const gate = output.windowGate;
+    const allOff = gate?.off ?? Math.pow(z + (1 - z) / 2, k);
     const a = name === "relu" ? 0 : (stash.slope ?? 0);
     derivativeSecond = 1 - allOff + a * a * allOff;
     derivativeZeroFraction = name === "relu" ? allOff : 0;
@@ -414,6 +415,12 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     // the arg-max gates of two terms are nearly always on, so nearly independent
     sampleCross = derivativeSecond * derivativeSecond;
     positionCross = sampleCross;
+    if (gate !== undefined) {
+      // unless the channels' means set them apart (the pool's windowGate): φ' = a + (1 − a)·on at each maximum
+      const pair = (bothOn: number): number => a * a + 2 * a * (1 - a) * (1 - allOff) + (1 - a) * (1 - a) * bothOn;
+      sampleCross = pair(gate.bothOnSamples);
+      positionCross = pair(gate.bothOnPositions);
+    }
   }
   let logVar = output.logVar;
   const fresh = output.fresh;

@@ -11,7 +11,7 @@ import type { GraphLayer } from "../../graph/types.js";
 import type { PoolLayer } from "../../spec/types.js";
 import { NO_FACTORS, eulerShare, factor, fmt, gradientCopy, gradientSum, positionCorrelationOf, sampleCorrelationOf, sharedOf } from "../common.js";
 import { normalCdf, normalPdf } from "../../numeric/normal.js";
-import type { Text, AnalyticRule, BackwardResult, ChannelSpread, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
+import type { Text, AnalyticRule, BackwardResult, ChannelSpread, ForwardResult, Gradient, OpContext, Signal, WindowGate } from "../types.js";
 import { copiedUnit } from "../unit-pairs.js";
 
 const AVERAGE_SOURCE = "mean of k elements: the part they share passes, the rest ÷ k (variance of a mean; common practice)";
@@ -90,6 +90,8 @@ export function maxOfNormals(k: number): { m1: number; m2: number; m1Positive: n
 /** What max-pool's backward needs: its output's moments. */
 export interface PoolStash {
   output: Signal;
+  /** where the channels' means set them: the chance a window's maximum is on a rectifier's off side, and pairs on */
+  gate: WindowGate | undefined;
 }
 
 export const poolRule: AnalyticRule<PoolStash | null> = {
@@ -183,7 +185,7 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
       role: "activation",
       inner: [],
       hazards: [],
-      stash: { output },
+      stash: { output, gate: offset === undefined ? undefined : { off: offset.off, bothOnSamples: offset.sampleOn, bothOnPositions: offset.positionOn } },
     };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: PoolStash | null, output: Gradient): BackwardResult {
@@ -248,6 +250,9 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
     }
     input.zeroFraction = 1 - reached * (1 - output.zeroFraction);
     input.windowMaximum = k;
+    // a window's maximum is off where its channel's mean sits low, more often than k independent inputs would be, and
+    // the windows of a channel are on or off together
+    input.windowGate = stash?.gate;
     if (output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar;
     // Σ a·δ_a over the routed pixels is Σ p·g at the output (a pixel picked by two windows gets g + g', a = p = p'):
     // a per-channel sum of batch × pixels products, paired as a weight gradient's terms (own algebra)
@@ -508,7 +513,33 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
     }
     return value;
   };
-  const result = { q, mean, off: Math.min(Math.max(1 - on, 0), 1), sampleShared: pair(between, position * within), positionShared: pair(common, 0) };
+  // E_S[P(on | S)²] likewise: given S = s, P(on) = 1 − E_X[Φ(−(s + X)/t)^k] (the maximum's distribution function,
+  // order statistics), by Simpson's rule in X, or in max z as E_z[Φ((s + t·z)/si)] where X is the wider
+  const bothOn = (outer: number, inner: number): number => {
+    const so = Math.sqrt(outer);
+    const si = Math.sqrt(inner);
+    if (!(so > 0)) return (1 - off) * (1 - off);
+    let value = 0;
+    for (let j = 0; j < OUTER.x.length; j++) {
+      const s = so * OUTER.x[j]!;
+      let p = 0;
+      if (!(t > 0) && !(si > 0)) p = s > 0 ? 1 : s < 0 ? 0 : 0.5;
+      else if (si <= t) for (let i = 0; i < OUTER.x.length; i++) p += OUTER.weight[i]! * (1 - Math.pow(normalCdf(-(s + si * OUTER.x[i]!) / t), k));
+      else for (let i = 0; i < z.length; i++) p += weight[i]! * normalCdf((s + t * z[i]!) / si);
+      value += OUTER.weight[j]! * p * p;
+    }
+    return value;
+  };
+  const off = Math.min(Math.max(1 - on, 0), 1);
+  const result = {
+    q,
+    mean,
+    off,
+    sampleShared: pair(between, position * within),
+    positionShared: pair(common, 0),
+    sampleOn: bothOn(between, position * within),
+    positionOn: bothOn(common, 0),
+  };
   // a batch of specs meets many channel statistics: kept to the last 1,024
   if (offsetCache.size >= 1024) offsetCache.clear();
   offsetCache.set(key, result);
@@ -526,13 +557,18 @@ function phiMean(m: number, s: number, a: number): number {
   return positive + a * (m - positive);
 }
 
-/** maxOfOffsetWindows: E[φ(M)²], E[φ(M)], P(M ≤ 0), and E[φ φ'] for two samples' windows and two of one sample's */
+/**
+ * maxOfOffsetWindows: E[φ(M)²], E[φ(M)], P(M ≤ 0), and E[φ φ'] and P(both on) for two samples' windows and two of one
+ * sample's
+ */
 export interface OffsetWindows {
   q: number;
   mean: number;
   off: number;
   sampleShared: number;
   positionShared: number;
+  sampleOn: number;
+  positionOn: number;
 }
 
 const offsetCache = new Map<string, OffsetWindows>();
