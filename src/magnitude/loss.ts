@@ -30,6 +30,7 @@ import type { LossSpec } from "../spec/types.js";
 import type { Gradient, Signal } from "../ops/types.js";
 import { gaussianSoftmaxMoments, gaussianSoftmaxPairMoment } from "../numeric/softmax.js";
 import { fmt } from "../ops/common.js";
+import { gaussianExpectation } from "../numeric/quadrature.js";
 
 /** The loss value and the gradient tensors it seeds. */
 export interface LossSeed {
@@ -104,8 +105,16 @@ export function lossSeed(
       // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
       const h = k * (1 / C - gaussianSoftmaxMoments(s2, C).second);
       gradient.curvature = { diagonal: h, diagonalSquare: h * h, rowSquares: (h * h * C) / (C - 1) };
-      // E[Σ_j z_j·(p_j − y_j)] = s²·Σ_j E[∂p_j/∂z_j] = s²·C·h/k per term (Stein's lemma; labels independent of the logits)
-      gradient.eulerSum = N * s2 * C * h;
+      // E[Σ_j z_j·(p_j − y_j)] = s²·Σ_j E[∂p_j/∂z_j] = s²·C·h/k per term (Stein's lemma; labels independent of the logits),
+      // at a draw of logit variance v. A channel's share is read squared, as its mean square over draws: the root of
+      // E[(v·(1/C − E[p²]))²] over v log-normal about the median (ln-variance V), by Gauss–Hermite quadrature
+      // (Golub & Welsch 1969), not the median's square (0.38 of a Monte Carlo's mean at V = 1.26, 4 classes)
+      const eulerOf = (u: number): number => {
+        const v = s2 * Math.exp(u);
+        const e = v * (1 / C - gaussianSoftmaxMoments(v, C).second);
+        return e * e;
+      };
+      gradient.eulerSum = V > 0 ? N * C * k * Math.sqrt(gaussianExpectation(eulerOf, V, EULER_NODES)) : N * s2 * C * h;
     }
     return {
       value: loss.reduction === "mean" ? perTerm : perTerm * N,
@@ -177,6 +186,10 @@ export function lossSeed(
     source: "squared-error gradient 2(y − t) (common practice); median over draws of a log-normal output scale (Hanin & Nica 2019)",
   };
 }
+
+// Gauss–Hermite nodes over the draws' logit variance for the Euler sum: its mean square within 2e-4 of 64 nodes' up to
+// V = 1.3 and 2.4% at V = 2 (measured, 4 to 1,000 classes); more nodes reach logit variances whose softmax moments are slow
+const EULER_NODES = 5;
 
 // the widest squared-error head whose rows are a scale mixture (see lossSeed)
 export const MIXED_ROWS = 64;

@@ -213,7 +213,9 @@ export interface Gradient {
    * positively homogeneous of degree 1 (dense and convolution layers with zero biases, ReLU, leaky ReLU, max and average
    * pools, dropout, flatten): E[Σ over batch and every unit of z·δ], which Euler's theorem makes the same at each such
    * layer, Σ y·∂L/∂y at the network's output y, N·E[yᵀ·M·y] = N·q_y·tr M by Stein's lemma (M the loss's curvature, see
-   * Curvature). A channel's homogeneous sum S holds its share, 1/channels, as a mean over draws
+   * Curvature). A channel's homogeneous sum S holds its share, 1/channels, which is read squared: the cross-entropy
+   * seed gives the root of the sum's mean square over draws (the logit variance log-normal over them), the squared-error
+   * seed its value at the median draw
    */
   eulerSum?: number;
   /**
