@@ -608,17 +608,29 @@ function judgeTensors(
   return tensors;
 }
 
-// what judgeTensor's `gather` adds to each setting for a tensor judged before
+// what judgeTensor gathers into each setting, for a tensor judged before
 function gatherFindings(checked: CheckedTensor, tensor: TensorPrediction, settings: readonly FormatSetting[], everyFormat: boolean): void {
-  const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+  const entry = heldBy(tensor);
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
     const judged = entryFormat(setting.evaluated, entry) === setting.format;
     if (!judged && !everyFormat) continue;
-    const found = CheckedTensor.findingsIn(checked, setting.format);
-    for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
-    if (judged) setting.tensorsJudged++;
+    gather(setting, CheckedTensor.findingsIn(checked, setting.format), judged);
   }
+}
+
+// a tensor's findings into its setting's, counted where the setting judges it (the loss in the accumulate format, not in
+// its slot's)
+function gather(setting: FormatSetting, found: readonly Finding[], judged: boolean): void {
+  for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
+  if (judged) setting.tensorsJudged++;
+}
+
+// the plan entry whose format holds a tensor: the loss is a reduction, held in the accumulate format (Micikevicius et
+// al. 2018 §3.3: reductions in FP32) as the scaled loss summed (lossScaleFactor); the loss-value hazard judges that
+// value there too, and covers a loss kept in the activation format
+function heldBy(tensor: TensorPrediction): PlanEntry {
+  return tensor.role === "loss" ? "accumulate" : tensor.slot;
 }
 
 /** Per tensor that shares its stored array with others (`partOf`), every part of that array; null when none does. */
@@ -663,7 +675,7 @@ function judgeTensor(
   everyFormat: boolean,
   arrays: Map<string, TensorPrediction[]> | null,
   ledger = false,
-  gather = false,
+  gathering = false,
   counted = false,
 ): CheckedTensor {
   const parts = arrays?.get(tensor.id);
@@ -678,10 +690,7 @@ function judgeTensor(
   const bounded = parts === undefined && !isProbabilityRow(tensor);
   // a format judged at another loss scale sees the tensor scaled by its own (gradients and the loss; the rest are unscaled)
   let other: ScaledTensor | undefined;
-  // the loss is a reduction, held in the accumulate format (Micikevicius et al. 2018 §3.3: reductions in
-  // FP32) as the scaled loss summed (lossScaleFactor); the loss-value hazard judges that value there too, and covers a
-  // loss kept in the activation format
-  const entry: PlanEntry = tensor.role === "loss" ? "accumulate" : tensor.slot;
+  const entry = heldBy(tensor);
   let verdict: Verdict = "fits";
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
@@ -728,11 +737,7 @@ function judgeTensor(
       found = risk.findings;
     }
     verdict = worseVerdict(verdict, riskVerdict);
-    if (gather) {
-      for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
-      // counted where judgeTensor judged it (the loss in the accumulate format, not in its slot's)
-      if (judged) setting.tensorsJudged++;
-    }
+    if (gathering) gather(setting, found, judged);
   }
   checked.verdict = verdict;
   return checked;

@@ -212,107 +212,97 @@ export function suffixGradient(
   pairWidth: number,
 ): SuffixGradient {
   const key = `${width}|${flat}|${position}|${gradientFlat}|${gradientPosition}|${pairWidth}`;
-  return memoised(suffixMemos, rows, key, () => suffix(rows, width, flat, position, gradientFlat, gradientPosition, pairWidth));
-}
-
-function suffix(
-  rows: CausalRows,
-  width: number,
-  flat: number,
-  position: number,
-  gradientFlat: number,
-  gradientPosition: number,
-  pairWidth: number,
-): SuffixGradient {
-  const P = rows.sumSquares.length;
-  if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0, query: 1, key: 1 };
-  const allPairs = P * (P - 1);
-  const { u, variances } = fitted(rows, width, flat, position);
-  // e_s, the norm's 1/rms² at s: γ_s² of the forward's kernel
-  const e = new Float64Array(P);
-  for (let s = 0; s < P; s++) e[s] = 1 / (1 - u + u * (variances[s] as number));
-  // R_s and Q_s, index s − 1, from the end
-  const R = new Float64Array(P);
-  const Q = new Float64Array(P);
-  let r = 0;
-  let q = 0;
-  for (let t = P; t >= 1; t--) {
-    const S = rows.sumSquares[t - 1] as number;
-    const et = e[t - 1] as number;
-    r += (et * S) / t;
-    if (t > 1) q += (et * (1 - S)) / (t * (t - 1));
-    R[t - 1] = r;
-    Q[t - 1] = q;
-  }
-  // a₀ = mean e_s, a₁ = mean e_s·R_s, B = mean over s ≠ s' of √(e_s·e_s')·Q_max; with the sums the value needs
-  let a0 = 0;
-  let a1 = 0;
-  let B = 0;
-  let diagonal0 = 0;
-  let diagonal1 = 0;
-  let across = 0;
-  let roots = 0;
-  for (let m = 1; m <= P; m++) {
-    const em = e[m - 1] as number;
-    const S = rows.sumSquares[m - 1] as number;
-    const rm = Math.sqrt(em);
-    const Qm = Q[m - 1] as number;
-    a0 += em;
-    a1 += em * (R[m - 1] as number);
-    B += 2 * rm * Qm * roots;
-    diagonal0 += S * em;
-    diagonal1 += S * em * (R[m - 1] as number);
-    across += (2 * rm * Qm * roots) / m;
-    roots += rm;
-  }
-  a0 /= P;
-  a1 /= P;
-  B /= allPairs;
-  const rho = Math.min(Math.max(gradientPosition, -1 / (P - 1)), 1);
-  let f = Math.min(Math.max(gradientFlat, 0), Math.max(rho, 0));
-  let c = f < 1 ? (rho - f) / (1 - f) : 0;
-  // the largest mean pair correlation suffix sums give (z → ∞); beyond it the excess is shared alike by every pair
-  const widest = a1 > 0 ? B / a1 : 0;
-  if (c > widest && widest < 1) {
-    f = (rho - widest) / (1 - widest);
-    c = widest;
-  }
-  const z = c > 0 ? (c >= widest ? Infinity : (c * a0) / (B - c * a1)) : 0;
-  // the kernel's part: λ·(Σ S_t·e_t·(1 + z·R_t) + z·Σ_(t≠t') √(e_t·e_t')·Q_max/max), λ = 1/(a₀ + z·a₁) (z → ∞: the limit)
-  const kernel = Number.isFinite(z) ? (diagonal0 + z * (diagonal1 + across)) / (a0 + z * a1) : (diagonal1 + across) / a1;
-  // the flat part: Σ_t S_t + Σ_(t≠t') 1/max(t, t') = Σ_t S_t + 2(P − H_P) (as the forward's pairs)
-  let harmonic = 0;
-  let sumSquares = 0;
-  for (let t = 1; t <= P; t++) {
-    harmonic += 1 / t;
-    sumSquares += rows.sumSquares[t - 1] as number;
-  }
-  const value = (f * (sumSquares + 2 * (P - harmonic)) + (1 - f) * kernel) / P;
-  // Σ_(t,t') C_tt' = P·(1 + (P − 1)·ρ) in units of E[δo²]
-  const pairs = (P * (1 + (P - 1) * rho) - P * value) / allPairs;
-  let query = 1;
-  let key = 1;
-  const centred = rows.centred;
-  if (centred !== undefined) {
-    // row t's own head gradient, f + (1 − f)·C_tt of the kernel's part, weighs what its softmax Jacobian leaves
-    const lambda = Number.isFinite(z) ? 1 / (a0 + z * a1) : 0;
-    let queryRows = 0;
-    let queryMean = 0;
-    let keyRows = 0;
-    let keyMean = 0;
-    for (let t = 1; t <= P; t++) {
+  return memoised(suffixMemos, rows, key, (): SuffixGradient => {
+    const P = rows.sumSquares.length;
+    if (P < 2) return { value: P === 1 ? 1 : 0, pairs: 0, query: 1, key: 1 };
+    const allPairs = P * (P - 1);
+    const { u, variances } = fitted(rows, width, flat, position);
+    // e_s, the norm's 1/rms² at s: γ_s² of the forward's kernel
+    const e = new Float64Array(P);
+    for (let s = 0; s < P; s++) e[s] = 1 / (1 - u + u * (variances[s] as number));
+    // R_s and Q_s, index s − 1, from the end
+    const R = new Float64Array(P);
+    const Q = new Float64Array(P);
+    let r = 0;
+    let q = 0;
+    for (let t = P; t >= 1; t--) {
+      const S = rows.sumSquares[t - 1] as number;
       const et = e[t - 1] as number;
-      const kernelRow = Number.isFinite(z) ? lambda * et * (1 + z * (R[t - 1] as number)) : (et * (R[t - 1] as number)) / a1;
-      const C = f + (1 - f) * kernelRow;
-      const ct = centred[t - 1] as number;
-      const spread = ct + (1 - (rows.sumSquares[t - 1] as number)) / Math.max(pairWidth, 1e-12);
-      queryRows += C * spread;
-      queryMean += spread;
-      keyRows += C * ct;
-      keyMean += ct;
+      r += (et * S) / t;
+      if (t > 1) q += (et * (1 - S)) / (t * (t - 1));
+      R[t - 1] = r;
+      Q[t - 1] = q;
     }
-    query = queryMean > 0 ? queryRows / queryMean : 1;
-    key = keyMean > 0 ? keyRows / keyMean : 1;
-  }
-  return { value, pairs, query, key };
+    // a₀ = mean e_s, a₁ = mean e_s·R_s, B = mean over s ≠ s' of √(e_s·e_s')·Q_max; with the sums the value needs
+    let a0 = 0;
+    let a1 = 0;
+    let B = 0;
+    let diagonal0 = 0;
+    let diagonal1 = 0;
+    let across = 0;
+    let roots = 0;
+    for (let m = 1; m <= P; m++) {
+      const em = e[m - 1] as number;
+      const S = rows.sumSquares[m - 1] as number;
+      const rm = Math.sqrt(em);
+      const Qm = Q[m - 1] as number;
+      a0 += em;
+      a1 += em * (R[m - 1] as number);
+      B += 2 * rm * Qm * roots;
+      diagonal0 += S * em;
+      diagonal1 += S * em * (R[m - 1] as number);
+      across += (2 * rm * Qm * roots) / m;
+      roots += rm;
+    }
+    a0 /= P;
+    a1 /= P;
+    B /= allPairs;
+    const rho = Math.min(Math.max(gradientPosition, -1 / (P - 1)), 1);
+    let f = Math.min(Math.max(gradientFlat, 0), Math.max(rho, 0));
+    let c = f < 1 ? (rho - f) / (1 - f) : 0;
+    // the largest mean pair correlation suffix sums give (z → ∞); beyond it the excess is shared alike by every pair
+    const widest = a1 > 0 ? B / a1 : 0;
+    if (c > widest && widest < 1) {
+      f = (rho - widest) / (1 - widest);
+      c = widest;
+    }
+    const z = c > 0 ? (c >= widest ? Infinity : (c * a0) / (B - c * a1)) : 0;
+    // the kernel's part: λ·(Σ S_t·e_t·(1 + z·R_t) + z·Σ_(t≠t') √(e_t·e_t')·Q_max/max), λ = 1/(a₀ + z·a₁) (z → ∞: the limit)
+    const kernel = Number.isFinite(z) ? (diagonal0 + z * (diagonal1 + across)) / (a0 + z * a1) : (diagonal1 + across) / a1;
+    // the flat part: Σ_t S_t + Σ_(t≠t') 1/max(t, t') = Σ_t S_t + 2(P − H_P) (as the forward's pairs)
+    let harmonic = 0;
+    let sumSquares = 0;
+    for (let t = 1; t <= P; t++) {
+      harmonic += 1 / t;
+      sumSquares += rows.sumSquares[t - 1] as number;
+    }
+    const value = (f * (sumSquares + 2 * (P - harmonic)) + (1 - f) * kernel) / P;
+    // Σ_(t,t') C_tt' = P·(1 + (P − 1)·ρ) in units of E[δo²]
+    const pairs = (P * (1 + (P - 1) * rho) - P * value) / allPairs;
+    let query = 1;
+    let key = 1;
+    const centred = rows.centred;
+    if (centred !== undefined) {
+      // row t's own head gradient, f + (1 − f)·C_tt of the kernel's part, weighs what its softmax Jacobian leaves
+      const lambda = Number.isFinite(z) ? 1 / (a0 + z * a1) : 0;
+      let queryRows = 0;
+      let queryMean = 0;
+      let keyRows = 0;
+      let keyMean = 0;
+      for (let t = 1; t <= P; t++) {
+        const et = e[t - 1] as number;
+        const kernelRow = Number.isFinite(z) ? lambda * et * (1 + z * (R[t - 1] as number)) : (et * (R[t - 1] as number)) / a1;
+        const C = f + (1 - f) * kernelRow;
+        const ct = centred[t - 1] as number;
+        const spread = ct + (1 - (rows.sumSquares[t - 1] as number)) / Math.max(pairWidth, 1e-12);
+        queryRows += C * spread;
+        queryMean += spread;
+        keyRows += C * ct;
+        keyMean += ct;
+      }
+      query = queryMean > 0 ? queryRows / queryMean : 1;
+      key = keyMean > 0 ? keyRows / keyMean : 1;
+    }
+    return { value, pairs, query, key };
+  });
 }

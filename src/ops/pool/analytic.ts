@@ -499,36 +499,38 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
       on += w * (m > 0 ? 1 : m < 0 ? 0 : 0.5);
     }
   }
-  // E_S[E[φ(S + X + t·max z) | S]²] for S ~ N(0, outer) and X ~ N(0, inner), the part the pair does not share
-  const pair = (outer: number, inner: number): number => {
+  // E_S[g(S)²] for S ~ N(0, outer), the part a pair shares, given g's value `none` where S is 0 (Simpson's rule in S);
+  // X ~ N(0, inner) is the part the pair does not share
+  const sharedSquare = (outer: number, none: number, g: (s: number) => number): number => {
     const so = Math.sqrt(outer);
-    const si = Math.sqrt(inner);
-    if (!(so > 0)) return mean * mean;
+    if (!(so > 0)) return none;
     let value = 0;
     for (let j = 0; j < OUTER.x.length; j++) {
-      const s = so * OUTER.x[j]!;
-      let g = 0;
-      for (let i = 0; i < z.length; i++) g += weight[i]! * phiMean(s + t * z[i]!, si, a);
-      value += OUTER.weight[j]! * g * g;
+      const given = g(so * OUTER.x[j]!);
+      value += OUTER.weight[j]! * given * given;
     }
     return value;
   };
-  // E_S[P(on | S)²] likewise: given S = s, P(on) = 1 − E_X[Φ(−(s + X)/t)^k] (the maximum's distribution function,
-  // order statistics), by Simpson's rule in X, or in max z as E_z[Φ((s + t·z)/si)] where X is the wider
-  const bothOn = (outer: number, inner: number): number => {
-    const so = Math.sqrt(outer);
+  // E_S[E[φ(S + X + t·max z) | S]²]
+  const pair = (outer: number, inner: number): number => {
     const si = Math.sqrt(inner);
-    if (!(so > 0)) return (1 - off) * (1 - off);
-    let value = 0;
-    for (let j = 0; j < OUTER.x.length; j++) {
-      const s = so * OUTER.x[j]!;
+    return sharedSquare(outer, mean * mean, (s) => {
+      let g = 0;
+      for (let i = 0; i < z.length; i++) g += weight[i]! * phiMean(s + t * z[i]!, si, a);
+      return g;
+    });
+  };
+  // E_S[P(on | S)²]: given S = s, P(on) = 1 − E_X[Φ(−(s + X)/t)^k] (the maximum's distribution function, order
+  // statistics), by Simpson's rule in X, or in max z as E_z[Φ((s + t·z)/si)] where X is the wider
+  const bothOn = (outer: number, inner: number): number => {
+    const si = Math.sqrt(inner);
+    return sharedSquare(outer, (1 - off) * (1 - off), (s) => {
       let p = 0;
       if (!(t > 0) && !(si > 0)) p = s > 0 ? 1 : s < 0 ? 0 : 0.5;
       else if (si <= t) for (let i = 0; i < OUTER.x.length; i++) p += OUTER.weight[i]! * (1 - Math.pow(normalCdf(-(s + si * OUTER.x[i]!) / t), k));
       else for (let i = 0; i < z.length; i++) p += weight[i]! * normalCdf((s + t * z[i]!) / si);
-      value += OUTER.weight[j]! * p * p;
-    }
-    return value;
+      return p;
+    });
   };
   const off = Math.min(Math.max(1 - on, 0), 1);
   const result = {
