@@ -395,6 +395,7 @@ function judged(spec: NetworkSpec, prediction: Prediction, options: CheckOptions
   const assumptions: string[] = [];
   for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
   checkAssumptions(assumptions, plan, settings, scales, training.length > 0, thresholds);
+  carriedAssumption(assumptions, plan, settings, tensors);
 
   return {
     version: 2,
@@ -1107,6 +1108,41 @@ export function trainingSites(
 
 function constantProfile(value: number): MagnitudeProfile {
   return { elements: 1, zeroFraction: 0, shape: "constant", rms: value, log2Spread: 0 };
+}
+
+// the kinds of a stored tensor's finding that change what is computed from it: values lost to zero or past the range
+const LOSES_VALUES: ReadonlySet<Finding["kind"]> = new Set(["flushed-values", "gradient-energy-flushed", "probability-mass-flushed", "overflow", "saturation"]);
+
+/**
+ * Appends, per planned format, that the prediction is of exact values where some stored tensor other than a weight
+ * gradient (read only by the optimizer, judged there) or the loss loses values in it: a float64 simulation of
+ * specs/deep-relu-glorot.yaml in its binary16 plan (9 draws; hidden-stack.40–48's pre-activations predicted to flush
+ * 2.5–39%) measured the gradients below 0.6–0.8 binade under the prediction, where the same run kept in binary64 put
+ * them −0.1…+0.4 from it (test/check/carried-flush.test.ts holds the effect on a small stack).
+ */
+function carriedAssumption(notes: string[], plan: PrecisionPlan, settings: readonly FormatSetting[], tensors: readonly TensorCheck[]): void {
+  for (let i = 0; i < settings.length; i++) {
+    const setting = settings[i] as FormatSetting;
+    if (setting.evaluated !== plan) continue;
+    let count = 0;
+    let first = "";
+    for (let j = 0; j < tensors.length; j++) {
+      const tensor = tensors[j] as TensorCheck;
+      if (tensor.role === "weight-gradient" || tensor.role === "loss") continue;
+      if (entryFormat(plan, tensor.slot) !== setting.format) continue;
+      const found = findingsOfTensor(tensor, setting.format);
+      let loses = false;
+      for (let k = 0; k < found.length && !loses; k++) loses = LOSES_VALUES.has((found[k] as Finding).kind);
+      if (!loses) continue;
+      if (count++ === 0) first = tensor.id;
+    }
+    if (count === 0) continue;
+    notes.push(
+      `Each tensor is predicted from exact values of the tensors it is computed from. In ${setting.format}, ${count === 1 ? "one stored tensor flushes or overflows" : `${count} stored tensors flush or overflow`} (${count === 1 ? "" : "the first: "}${first}); ` +
+        "what they lose is not carried into the tensors computed from them, forward or backward, so those can differ from these predictions: " +
+        "a flushed value arrives as an exact zero, an overflowed one as infinity, and a ReLU whose input flushed zeroes its gradient too. Fix those first, then check again.",
+    );
+  }
 }
 
 // appends the check's assumptions to `notes`
