@@ -129,6 +129,8 @@ export interface ChannelSpread {
   q: number;
   /** correlation of the input's deviations from its channel's mean between two positions of one sample */
   position: number;
+  /** the κ per channel the rectifier counted in logVar (its channel sums' Var/E²) and the channels, where it counted one */
+  unit?: { kappa: number; width: number };
 }
 
 /**

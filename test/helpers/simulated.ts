@@ -29,6 +29,8 @@ export function measuredDifferences(yaml: string, name: string, pattern: RegExp,
 export interface SpreadRow {
   measured: number;
   predicted: number;
+  /** log2(measured rms / predicted rms), the measurement the median draw (as measuredDifferences) */
+  difference: number;
 }
 
 /**
@@ -46,7 +48,7 @@ export function measuredSpreads(yaml: string, name: string, draws: number): Map<
     const logs = r.measured.draws.map((d) => Math.log2(d.rms * Math.sqrt(1 - d.zeroFraction)));
     const mean = logs.reduce((a, b) => a + b, 0) / logs.length;
     const variance = logs.reduce((a, b) => a + (b - mean) ** 2, 0) / (logs.length - 1);
-    rows.set(r.id, { measured: Math.sqrt(variance), predicted: r.predictedLog2Spread });
+    rows.set(r.id, { measured: Math.sqrt(variance), predicted: r.predictedLog2Spread, difference: r.differenceBinades });
   }
   return rows;
 }

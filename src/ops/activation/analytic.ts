@@ -307,7 +307,8 @@ export function pointwiseForward(
   const derivativeMean = keep * m.derivativeMean + input.zeroFraction * d0;
   const zeroFraction = (f0 === 0 ? input.zeroFraction : 0) + keep * m.zeroFraction;
   let logVar = input.logVar;
-  if (input.fresh !== undefined) logVar = Math.max(logVar + (forwardUnitKappa(name, slope, qNonzero, input.fresh.unit, forwardKappa(m)) - input.fresh.kappa) / input.fresh.width, 0);
+  const unitKappa = input.fresh === undefined ? 0 : forwardUnitKappa(name, slope, qNonzero, input.fresh.unit, forwardKappa(m));
+  if (input.fresh !== undefined) logVar = Math.max(logVar + (unitKappa - input.fresh.kappa) / input.fresh.width, 0);
   const { shape, bound } = outputShape(name, input);
   // two samples' pre-activations u, v have correlation c = shared/q; E[φ(u)φ(v)] is the shared part of the output
   const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
@@ -344,6 +345,7 @@ export function pointwiseForward(
     const within = input.q - channelShared;
     const position = Math.min(Math.max((positionCorrelation * input.q - channelShared) / within, 0), 1);
     output.channelSpread = { slope: name === "relu" ? 0 : slope, between: Math.max(channelShared, 0), within, q, position };
+    if (input.fresh !== undefined) output.channelSpread.unit = { kappa: unitKappa, width: input.fresh.width };
   }
   if (bound !== undefined) output.bound = bound;
   if (name === "leaky-relu" && input.gaussian && input.zeroFraction === 0 && Math.abs(input.mean) < 1e-12) output.rectifier = { slope: slope ?? 0, preQ: input.q };

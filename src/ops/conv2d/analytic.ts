@@ -81,11 +81,76 @@ function unitSpread(ctx: OpContext, layer: GraphLayer, input: Signal, output: Si
   const b = (biasWeight === undefined ? 0 : ctx.variance(biasWeight)) / output.q;
   const a = 1 - b;
   const fanIn = Math.max(w.fanIn, 1);
-  const pairs = (mean: number): { mean: number; deviation: number } => ({ mean: a * mean + b, deviation: (a * (1 - mean * mean)) / Math.sqrt(fanIn) });
-  const unit = unitPairs(ctx.batch, positionCount(layer.output), pairs(positionCorrelationOf(input)), pairs(sampleCorrelationOf(input)));
+  const overlap = paddedOverlap(layer);
+  // the cosine of two zero-padded patches is the unpadded one times f (see paddedOverlap): its mean and E[c²] over the
+  // pairs, each weighted by the two terms' variances (own algebra)
+  const pairs = (mean: number, f: OverlapMoments): { mean: number; deviation: number } => {
+    const deviation = (a * (1 - mean * mean)) / Math.sqrt(fanIn);
+    const m = a * mean * f.mean + b;
+    const square = a * a * mean * mean * f.square + deviation * deviation * f.square + 2 * a * b * mean * f.mean + b * b;
+    return { mean: m, deviation: Math.sqrt(Math.max(square - m * m, 0)) };
+  };
+  const unit = unitPairs(ctx.batch, positionCount(layer.output), pairs(positionCorrelationOf(input), overlap.same), pairs(sampleCorrelationOf(input), overlap.other));
   const kappa = linearUnitKappa(unit);
   output.logVar = input.logVar + kappa / fresh.width;
   output.fresh = { width: fresh.width, kappa, unitKappa: kappa, unit };
+}
+
+/** A pair class's mean of f and of f² (weighted as in paddedOverlap). */
+interface OverlapMoments {
+  mean: number;
+  square: number;
+}
+
+const NO_PADDING = { same: { mean: 1, square: 1 }, other: { mean: 1, square: 1 } };
+
+/**
+ * Two output pixels t, t' read their patches' taps inside the image, S_t and S_t' (zero padding), so the cosine of the
+ * two patches over the weights is the unpadded patches' times f = |S_t ∩ S_t'|/√(|S_t|·|S_t'|), and a pair's term
+ * variances weigh by |S_t|·|S_t'| in the channel's sum (Var/E² of Σ_t u_t² is Σ_tt' q_t·q_t'·g(c_tt')/(Σ_t q_t)²; exact
+ * for a positively homogeneous activation's g). The moments of f over two pixels of one sample (t ≠ t', `same`) and over
+ * any two pixels of two samples (`other`); the sets are products of one interval per axis, so each sum is the product of
+ * the axes' (own algebra). Without padding f = 1.
+ */
+function paddedOverlap(layer: GraphLayer): { same: OverlapMoments; other: OverlapMoments } {
+  const spec = layer.spec as Conv2dLayer;
+  if (layer.input.layout !== "image" || spec.padding === "valid" || spec.padding === 0) return NO_PADDING;
+  const g = conv2dGeometry(1, layer.input.channels, layer.input.height, layer.input.width, spec.channels, spec.kernel, spec.stride, spec.padding);
+  // per axis: Σ_oo' √(n_o·n_o')·m_oo', Σ_oo' m_oo'², (Σ_o n_o)² and Σ_o n_o², n_o the taps inside at output o and m_oo'
+  // the taps inside at both
+  const axis = (size: number, out: number, before: number): { root: number; square: number; all: number; diagonal: number } => {
+    const lo: number[] = [];
+    const hi: number[] = [];
+    for (let o = 0; o < out; o++) {
+      const start = o * g.stride - before;
+      lo.push(Math.max(0, -start));
+      hi.push(Math.min(g.kernel - 1, size - 1 - start));
+    }
+    let root = 0;
+    let square = 0;
+    let total = 0;
+    let diagonal = 0;
+    for (let o = 0; o < out; o++) {
+      const n = Math.max(hi[o]! - lo[o]! + 1, 0);
+      total += n;
+      diagonal += n * n;
+      for (let p = 0; p < out; p++) {
+        const both = Math.max(Math.min(hi[o]!, hi[p]!) - Math.max(lo[o]!, lo[p]!) + 1, 0);
+        root += Math.sqrt(n * Math.max(hi[p]! - lo[p]! + 1, 0)) * both;
+        square += both * both;
+      }
+    }
+    return { root, square, all: total * total, diagonal };
+  };
+  const r = axis(g.height, g.outHeight, g.padTop);
+  const c = axis(g.width, g.outWidth, g.padLeft);
+  const all = r.all * c.all;
+  const diagonal = r.diagonal * c.diagonal;
+  if (!(all > 0)) return NO_PADDING;
+  const other = { mean: (r.root * c.root) / all, square: (r.square * c.square) / all };
+  const apart = all - diagonal;
+  const same = apart > 0 ? { mean: (r.root * c.root - diagonal) / apart, square: (r.square * c.square - diagonal) / apart } : other;
+  return { same, other };
 }
 
 export const conv2dRule: AnalyticRule<DenseStash> = {

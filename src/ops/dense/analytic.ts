@@ -41,7 +41,7 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   const output = linearOutput(q, input.logVar, outWidth, gain * sharedOf(input) + biasVariance);
   const positions = positionCount(layer.output);
   if (layer.family === "dense" && positions > 1 && q > 0 && input.q > 0) positionSpread(ctx.batch, positions, w.fanIn, input, output, gain * input.q / q, biasVariance / q);
-  else if (layer.family === "dense" && input.correlationSquare !== undefined && q > 0 && input.q > 0) batchSpread(output, input, ctx.batch, gain * input.q / q, biasVariance / q, input.correlationSquare);
+  else if (layer.family === "dense" && q > 0 && input.q > 0) batchSpread(output, input, ctx.batch, gain * input.q / q, biasVariance / q, input.correlationSquare ?? droppedCosineSquare(input, w.fanIn));
   // two positions' outputs share Σ_i W_ji²·E[x_p,i x_p',i] and the bias: the input's correlation, diluted by the bias
   if (q > 0) output.positionCorrelation = (gain * input.q * positionCorrelationOf(input) + biasVariance) / q;
   if (layer.family === "dense" && q > 0) {
@@ -80,6 +80,15 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
  */
 function fisherSquare(s: number, width: number): number {
   return Math.min(s + ((1 - s) * (1 - s)) / width, 1);
+}
+
+/**
+ * E[c²] of two samples' cosine where a family between dropped it (a convolution stack's pool and flatten): its mean
+ * c̄ = shared/q squared, spread by Fisher's (1 − c̄²)²/fan_in (Fisher 1915), as positionSpread floors it
+ */
+function droppedCosineSquare(input: Signal, fanIn: number): number {
+  const mean = Math.min(Math.max(sharedOf(input) / input.q, -1), 1);
+  return fisherSquare(mean * mean, fanIn);
 }
 
 /** A pair class's E[c²]: its mean's square plus its variance (at most 1). */

@@ -151,13 +151,20 @@ export const poolRule: AnalyticRule<PoolStash | null> = {
       rule = `max of ${k} ${spread!.slope === 0 ? "ReLU" : "leaky-ReLU"} outputs, channel means apart: E[φ(M)²]/E[x²]`;
       source = OFFSET_SOURCE;
     }
+    let logVar = input.logVar;
+    if (offset !== undefined && spread!.unit !== undefined) {
+      // the rectifier's channel sums spread by κ per channel mostly through the channel's mean; the window maxima
+      // spread by the share offsetChannelKappas gives of it (own algebra)
+      const kappas = offsetChannelKappas(k, spread!);
+      if (kappas.rectifier > 0) logVar = Math.max(logVar + ((kappas.maxima / kappas.rectifier - 1) * spread!.unit.kappa) / spread!.unit.width, 0);
+    }
     const output: Signal = {
       q,
       mean,
       shared,
       zeroFraction,
       shape: "gaussian",
-      logVar: input.logVar,
+      logVar,
       gaussian: false,
     };
     if (layer.family === "max-pool" && q > 0) {
@@ -557,6 +564,54 @@ function phiMean(m: number, s: number, a: number): number {
   const r = m / s;
   const positive = m * normalCdf(r) + s * normalPdf(r);
   return positive + a * (m - positive);
+}
+
+/** E[φ(m + s·z)²] for z standard normal, φ(x) = max(x, 0) + a·min(x, 0) (moments of a truncated normal). */
+function phiSquare(m: number, s: number, a: number): number {
+  if (!(s > 0)) return m > 0 ? m * m : a * a * m * m;
+  const r = m / s;
+  const positive = (m * m + s * s) * normalCdf(r) + m * s * normalPdf(r);
+  return positive + a * a * (m * m + s * s - positive);
+}
+
+const kappaCache = new Map<string, { rectifier: number; maxima: number }>();
+
+/**
+ * Var/E² over the channel's mean μ ~ N(0, between) of a channel's mean square given μ: of the rectifier's outputs,
+ * F(μ) = E[φ(μ + e)²] with e ~ N(0, within), and of its window maxima, G(μ) = E[φ(μ + P + t·max z)²] with P ~ N(0,
+ * position·within) the part a sample's pixels share and t² = (1 − position)·within (as maxOfOffsetWindows). A channel
+ * whose mean sits low has few outputs on, and the maximum of its window picks those: G spreads less than F (own
+ * algebra; Simpson's rule in μ and in max z)
+ */
+export function offsetChannelKappas(k: number, spread: ChannelSpread): { rectifier: number; maxima: number } {
+  const { between, within, position, slope: a } = spread;
+  const key = `${k}:${between}:${within}:${position}:${a}`;
+  const hit = kappaCache.get(key);
+  if (hit !== undefined) return hit;
+  const { z, weight } = offsetGrid(k);
+  const sigma = Math.sqrt(Math.max(between, 0));
+  const s = Math.sqrt(Math.max(within, 0));
+  const sp = Math.sqrt(Math.max(position * within, 0));
+  const t = Math.sqrt(Math.max((1 - position) * within, 0));
+  let f1 = 0;
+  let f2 = 0;
+  let g1 = 0;
+  let g2 = 0;
+  for (let j = 0; j < OUTER.x.length; j++) {
+    const mu = sigma * OUTER.x[j]!;
+    const w = OUTER.weight[j]!;
+    const f = phiSquare(mu, s, a);
+    let g = 0;
+    for (let i = 0; i < z.length; i++) g += weight[i]! * phiSquare(mu + t * z[i]!, sp, a);
+    f1 += w * f;
+    f2 += w * f * f;
+    g1 += w * g;
+    g2 += w * g * g;
+  }
+  const result = { rectifier: f1 > 0 ? Math.max(f2 / (f1 * f1) - 1, 0) : 0, maxima: g1 > 0 ? Math.max(g2 / (g1 * g1) - 1, 0) : 0 };
+  if (kappaCache.size >= 1024) kappaCache.clear();
+  kappaCache.set(key, result);
+  return result;
 }
 
 /**
