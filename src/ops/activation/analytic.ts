@@ -384,6 +384,20 @@ export function pointwiseForward(
   };
 }
 
+/**
+ * Gradient.coupling below a pointwise unit. The output meets the spread of the transposed maps below only through the
+ * part of each unit's output that moves with its input, φ(u) − φ(0): φ(0) (a sigmoid's 1/2) stays whatever those maps
+ * draw. Scaling that part by λ moves ln E[φ²] by d ln E[φ²]/d ln λ² = E[φ·(φ − φ(0))]/E[φ²] at λ = 1, so the seed's
+ * elasticity with respect to it is e times that (chain rule; own algebra); 1 where φ(0) = 0. A 30-layer sigmoid stack's
+ * gradients spread 1.44× as wide as the float64 simulation measured (101 draws) when the whole e was carried below.
+ */
+function carriedCoupling(name: ActivationName, out: Signal | undefined, coupling: { elasticity: number; budget: number }): { elasticity: number; budget: number } {
+  const f0 = valueAtZero(name);
+  if (f0 === 0 || out === undefined || !(out.q > 0)) return coupling;
+  const share = Math.min(Math.max(1 - (f0 * out.mean) / out.q, 0), 1);
+  return { elasticity: coupling.elasticity * share, budget: coupling.budget };
+}
+
 /** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
 export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient, ledger: boolean): { gradient: Gradient; ratio: number; rule: Text } {
   let kappaBackward = stash.kappaBackward;
@@ -468,7 +482,7 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     gradient.mixture = { activation: name, inputVariance: input.q, slope: a };
   }
   if (output.sharedLogVar !== undefined) gradient.sharedLogVar = Math.max(output.sharedLogVar + (logVar - output.logVar), 0);
-  if (output.coupling !== undefined) gradient.coupling = output.coupling;
+  if (output.coupling !== undefined) gradient.coupling = carriedCoupling(name as ActivationName, stash.output, output.coupling);
   // φ' gates two samples' gradients alike where their pre-activations agree: the cosine scales by E[φ'(u)φ'(v)]/E[φ'²]
   // (φ' taken as independent of δ, as the backward rule does)
   if (output.cosineSquare !== undefined && derivativeSecond > 0) gradient.cosineSquare = Math.min((sampleCross / derivativeSecond) ** 2 * output.cosineSquare, 1);
