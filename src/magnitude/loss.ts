@@ -100,6 +100,15 @@ export function lossSeed(
     // the shared part follows the logits' shared part (of the output's spread, Signal.sharedLogVar) through the pair
     // moment, the logit variance held: the delta method in c (own algebra)
     if (c > 0 && sharedQ > 0) gradient.sharedLogVar = logVarOf((x) => gaussianSoftmaxPairMoment(s2, Math.min(x, 1), C) - 1 / (C * C), c, output.sharedLogVar ?? output.logVar);
+    // two positions of one sample: the same pair moment at the logits' position correlation, labels independent across
+    // positions too (own algebra, as for two samples); left unset it would be the samples' c (a tagger's inputs share
+    // 0.75 across the positions of one sequence and 0.03 across sequences: its gradient's position correlation was 27×
+    // too small, measured Dec 2026)
+    if (positions > 1 && output.positionCorrelation !== undefined && s2Mean > 0 && total.q > 0) {
+      const cPosition = Math.min(Math.max((output.q * output.positionCorrelation - output.mean * output.mean) / s2Mean, 0), 1);
+      const positionQ = Math.max(gaussianSoftmaxPairMoment(s2, cPosition, C) - 1 / (C * C), 0) * k * k * Math.exp(total.logVar / 2);
+      gradient.positionCorrelation = Math.min(positionQ / total.q, 1);
+    }
     if (!end && C >= 2) {
       // ∂(p − y)/∂z = diag(p) − p pᵀ; its mean over Gaussian logits has E[p_j − p_j²] = 1/C − E[p²] on the diagonal and,
       // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
@@ -154,6 +163,8 @@ export function lossSeed(
   // carries none of its own (Signal.sharedLogVar), not the seed's: a narrow head's batch mean is one Gaussian per unit
   // (own algebra)
   gradient.sharedLogVar = output.sharedLogVar ?? output.logVar;
+  // two positions of one sample share the outputs' position part likewise, the targets independent across positions
+  if (positions > 1 && output.positionCorrelation !== undefined && seed.q > 0) gradient.positionCorrelation = Math.min((output.q * output.positionCorrelation * k * k) / seed.q, 1);
   // a row's k residuals are i.i.d. Gaussian, but every gradient a transposed weight map spreads them into is Gaussian
   // only given their norm: a scale mixture over √(χ²_k/k) (Gradient.rows); past k = 64 it moves a flushed share by
   // under 1.2% (E[√k/χ_k] ≈ 1 + 3/(4k), from E[1/χ_k] = Γ((k−1)/2)/(√2·Γ(k/2)): own algebra), and is left out
