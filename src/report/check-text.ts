@@ -11,7 +11,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { planSettings } from "./plan-settings.js";
 import { formatBinades, formatPercent, formatProbability, formatValue } from "./number.js";
 import { PLAIN, type Style } from "./style.js";
-import { PLAN_ENTRY_WORDS } from "./summary.js";
+import { PLAN_ENTRY_WORDS, valuesLostSentence } from "./summary.js";
 import { renderTable, type Cell } from "./table.js";
 
 /** Options of {@link renderCheckText}. */
@@ -404,6 +404,8 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
       const more = format.reasons.length - shown.length;
       out += `    - and ${more} more ${more === 1 ? "kind" : "kinds"} of finding (--json lists every one).\n`;
     }
+    const lost = format.valuesLost;
+    if (lost !== undefined) out += wrap(valuesLostSentence(lost, lost.first), width, "    ", "    ");
   }
 
   if ("optimizer" in result) out += renderDecisions(result as CheckAnswer, width, style);

@@ -8,7 +8,7 @@ import { lossScaleClause, lossScaleSummaries, namesGradientFormats } from "./los
 import type { CheckAnswer } from "../check.js";
 import type { CheckResult } from "../risk/index.js";
 import type { LossScaleSummary } from "../batch/types.js";
-import { FINDING_WORDS, findingScope, findingsWorstFirst, PLAN_ENTRY_WORDS } from "./summary.js";
+import { FINDING_WORDS, findingScope, findingsWorstFirst, PLAN_ENTRY_WORDS, valuesLostSentence } from "./summary.js";
 import { formatValue } from "./number.js";
 import { planSettings } from "./plan-settings.js";
 
@@ -41,6 +41,8 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
       f.reasons.length > 0 ? f.reasons.join("\n") : "",
     ]),
   );
+  const losing = result.formats.filter((f) => f.valuesLost !== undefined);
+  out += markdownList("Values lost", losing.map((f) => `${f.format}: ${valuesLostSentence(f.valuesLost!, f.valuesLost!.first)}`));
   const findings = findingsWorstFirst(result);
   if (findings.length > 0) {
     out += `\nWorst findings (${Math.min(limit, findings.length)} of ${findings.length}):\n\n`;

@@ -97,6 +97,12 @@ export interface FormatCheck {
   /** tensors the format holds */
   tensorsJudged: number;
   findings: Finding[];
+  /**
+   * a planned format only, present when it loses values (flushed or overflowed) of stored tensors that others are computed
+   * from (not weight gradients, which only the optimizer reads, nor the loss): how many, and the first in the order they
+   * are computed. The prediction does not carry those losses into the tensors computed from them (the assumptions say so).
+   */
+  valuesLost?: { tensors: number; first: string };
 }
 
 /** One tensor: its prediction and its risk in every judged format. */
@@ -395,7 +401,16 @@ function judged(spec: NetworkSpec, prediction: Prediction, options: CheckOptions
   const assumptions: string[] = [];
   for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
   checkAssumptions(assumptions, plan, settings, scales, training.length > 0, thresholds);
-  carriedAssumption(assumptions, plan, settings, tensors);
+  for (let i = 0; i < settings.length; i++) {
+    const lost = valuesLost(plan, settings[i] as FormatSetting, tensors);
+    if (lost === undefined) continue;
+    (formatChecks[i] as FormatCheck).valuesLost = { tensors: lost.tensors, first: lost.first };
+    assumptions.push(
+      `Each tensor is predicted from exact values of the tensors it is computed from. In ${lost.format}, ${lost.tensors === 1 ? "one stored tensor flushes or overflows" : `${lost.tensors} stored tensors flush or overflow`} (${lost.tensors === 1 ? "" : "the first: "}${lost.first}); ` +
+        "what they lose is not carried into the tensors computed from them, forward or backward, so those can differ from these predictions: " +
+        "a flushed value arrives as an exact zero, an overflowed one as infinity, and a ReLU whose input flushed zeroes its gradient too. Fix those first, then check again.",
+    );
+  }
 
   return {
     version: 2,
@@ -1114,35 +1129,27 @@ function constantProfile(value: number): MagnitudeProfile {
 const LOSES_VALUES: ReadonlySet<Finding["kind"]> = new Set(["flushed-values", "gradient-energy-flushed", "probability-mass-flushed", "overflow", "saturation"]);
 
 /**
- * Appends, per planned format, that the prediction is of exact values where some stored tensor other than a weight
- * gradient (read only by the optimizer, judged there) or the loss loses values in it: a float64 simulation of
- * specs/deep-relu-glorot.yaml in its binary16 plan (9 draws; hidden-stack.40–48's pre-activations predicted to flush
- * 2.5–39%) measured the gradients below 0.6–0.8 binade under the prediction, where the same run kept in binary64 put
- * them −0.1…+0.4 from it (test/check/carried-flush.test.ts holds the effect on a small stack).
+ * The stored tensors a planned format loses values of (FormatCheck.valuesLost), other than weight gradients (read only
+ * by the optimizer, judged there) and the loss. Why it matters: a float64 simulation of specs/deep-relu-glorot.yaml in its
+ * binary16 plan (9 draws; hidden-stack.40–48's pre-activations predicted to flush 2.5–39%) measured the gradients below
+ * 0.6–0.8 binade under the prediction, where the same run kept in binary64 put them −0.1…+0.4 from it
+ * (test/check/carried-flush.test.ts holds the effect on a small stack).
  */
-function carriedAssumption(notes: string[], plan: PrecisionPlan, settings: readonly FormatSetting[], tensors: readonly TensorCheck[]): void {
-  for (let i = 0; i < settings.length; i++) {
-    const setting = settings[i] as FormatSetting;
-    if (setting.evaluated !== plan) continue;
-    let count = 0;
-    let first = "";
-    for (let j = 0; j < tensors.length; j++) {
-      const tensor = tensors[j] as TensorCheck;
-      if (tensor.role === "weight-gradient" || tensor.role === "loss") continue;
-      if (entryFormat(plan, tensor.slot) !== setting.format) continue;
-      const found = findingsOfTensor(tensor, setting.format);
-      let loses = false;
-      for (let k = 0; k < found.length && !loses; k++) loses = LOSES_VALUES.has((found[k] as Finding).kind);
-      if (!loses) continue;
-      if (count++ === 0) first = tensor.id;
-    }
-    if (count === 0) continue;
-    notes.push(
-      `Each tensor is predicted from exact values of the tensors it is computed from. In ${setting.format}, ${count === 1 ? "one stored tensor flushes or overflows" : `${count} stored tensors flush or overflow`} (${count === 1 ? "" : "the first: "}${first}); ` +
-        "what they lose is not carried into the tensors computed from them, forward or backward, so those can differ from these predictions: " +
-        "a flushed value arrives as an exact zero, an overflowed one as infinity, and a ReLU whose input flushed zeroes its gradient too. Fix those first, then check again.",
-    );
+function valuesLost(plan: PrecisionPlan, setting: FormatSetting, tensors: readonly TensorCheck[]): { format: FormatName; tensors: number; first: string } | undefined {
+  if (setting.evaluated !== plan) return undefined;
+  let count = 0;
+  let first = "";
+  for (let j = 0; j < tensors.length; j++) {
+    const tensor = tensors[j] as TensorCheck;
+    if (tensor.role === "weight-gradient" || tensor.role === "loss") continue;
+    if (entryFormat(plan, tensor.slot) !== setting.format) continue;
+    const found = findingsOfTensor(tensor, setting.format);
+    let loses = false;
+    for (let k = 0; k < found.length && !loses; k++) loses = LOSES_VALUES.has((found[k] as Finding).kind);
+    if (!loses) continue;
+    if (count++ === 0) first = tensor.id;
   }
+  return count === 0 ? undefined : { format: setting.format, tensors: count, first };
 }
 
 // appends the check's assumptions to `notes`

@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
 import { check } from "../../src/check.js";
+import { renderCheckText } from "../../src/report/check-text.js";
 import { predict } from "../../src/magnitude/index.js";
 import { simulate } from "../../src/simulate/index.js";
 import { parseSpec } from "../../src/spec/index.js";
@@ -66,10 +67,14 @@ describe("a format's flushing is not carried into the tensors computed from it",
     expect(losing.length).toBeGreaterThan(0);
     expect(losing.some((t) => t.role === "pre-activation")).toBe(true);
     expect(said[0]).toContain(`In binary16, ${losing.length} stored tensors flush or overflow (the first: ${losing[0]!.id})`);
+    // the same count on the format, which the text report tells under its verdict
+    expect(half.formats.find((f) => f.format === "binary16")!.valuesLost).toEqual({ tensors: losing.length, first: losing[0]!.id });
+    expect(renderCheckText(half, { width: 1000 })).toContain(`The tensors computed from the ${losing.length} that lose values here (the first: ${losing[0]!.id})`);
   });
 
   it("and says nothing where every tensor is held in binary32", () => {
     expect(carried(single.assumptions)).toEqual([]);
+    expect(single.formats.every((f) => f.valuesLost === undefined)).toBe(true);
   });
 
   it("the simulation in binary16 puts the gradients under the same run in binary64, by more than the model's usual miss", () => {
