@@ -405,7 +405,7 @@ export function renderCheckText(result: CheckResult, options: CheckTextOptions =
       out += `    - and ${more} more ${more === 1 ? "kind" : "kinds"} of finding (--json lists every one).\n`;
     }
     const lost = format.valuesLost;
-    if (lost !== undefined) out += wrap(valuesLostSentence(lost, lost.first), width, "    ", "    ");
+    if (lost !== undefined) out += wrap(valuesLostSentence(lost), width, "    ", "    ");
   }
 
   if ("optimizer" in result) out += renderDecisions(result as CheckAnswer, width, style);

@@ -42,7 +42,7 @@ export function renderCheckMarkdown(result: CheckResult | CheckAnswer, options: 
     ]),
   );
   const losing = result.formats.filter((f) => f.valuesLost !== undefined);
-  out += markdownList("Values lost", losing.map((f) => `${f.format}: ${valuesLostSentence(f.valuesLost!, f.valuesLost!.first)}`));
+  out += markdownList("Values lost", losing.map((f) => `${f.format}: ${valuesLostSentence(f.valuesLost!)}`));
   const findings = findingsWorstFirst(result);
   if (findings.length > 0) {
     out += `\nWorst findings (${Math.min(limit, findings.length)} of ${findings.length}):\n\n`;

@@ -20,18 +20,15 @@ export const PLAN_ENTRY_WORDS = {
   gradientSums: "gradient sums",
 } as const satisfies Record<PlanEntry, string>;
 
-/** How each kind of finding is named in a row, and what its number measures. */
-/**
- * What a planned format's `valuesLost` means, in one sentence (the text and markdown reports): `first` is passed so
- * each renderer can mark the id up its own way.
- */
-export function valuesLostSentence(lost: { tensors: number }, first: string): string {
+/** What a planned format's `valuesLost` means, in one sentence (the text and markdown reports). */
+export function valuesLostSentence(lost: { tensors: number; first: string }): string {
   return (
-    `The tensors computed from the ${lost.tensors === 1 ? "one that loses" : `${lost.tensors} that lose`} values here (the first: ${first}) are predicted from exact values: ` +
+    `The tensors computed from the ${lost.tensors === 1 ? "one that loses" : `${lost.tensors} that lose`} values here (the first: ${lost.first}) are predicted from exact values: ` +
     "what flushes or overflows is not carried forward or backward, so fix the first, then check again."
   );
 }
 
+/** How each kind of finding is named in a row, and what its number measures. */
 export const FINDING_WORDS = {
   overflow: { label: "overflow", measure: "probability" },
   saturation: { label: "saturation", measure: "probability" },

@@ -402,11 +402,12 @@ function judged(spec: NetworkSpec, prediction: Prediction, options: CheckOptions
   for (let i = 0; i < prediction.assumptions.length; i++) assumptions.push(prediction.assumptions[i] as string);
   checkAssumptions(assumptions, plan, settings, scales, training.length > 0, thresholds);
   for (let i = 0; i < settings.length; i++) {
-    const lost = valuesLost(plan, settings[i] as FormatSetting, tensors);
+    const setting = settings[i] as FormatSetting;
+    const lost = valuesLost(plan, setting, tensors);
     if (lost === undefined) continue;
-    (formatChecks[i] as FormatCheck).valuesLost = { tensors: lost.tensors, first: lost.first };
+    (formatChecks[i] as FormatCheck).valuesLost = lost;
     assumptions.push(
-      `Each tensor is predicted from exact values of the tensors it is computed from. In ${lost.format}, ${lost.tensors === 1 ? "one stored tensor flushes or overflows" : `${lost.tensors} stored tensors flush or overflow`} (${lost.tensors === 1 ? "" : "the first: "}${lost.first}); ` +
+      `Each tensor is predicted from exact values of the tensors it is computed from. In ${setting.format}, ${lost.tensors === 1 ? "one stored tensor flushes or overflows" : `${lost.tensors} stored tensors flush or overflow`} (${lost.tensors === 1 ? "" : "the first: "}${lost.first}); ` +
         "what they lose is not carried into the tensors computed from them, forward or backward, so those can differ from these predictions: " +
         "a flushed value arrives as an exact zero, an overflowed one as infinity, and a ReLU whose input flushed zeroes its gradient too. Fix those first, then check again.",
     );
@@ -1135,7 +1136,7 @@ const LOSES_VALUES: ReadonlySet<Finding["kind"]> = new Set(["flushed-values", "g
  * 0.6–0.8 binade under the prediction, where the same run kept in binary64 put them −0.1…+0.4 from it
  * (test/check/carried-flush.test.ts holds the effect on a small stack).
  */
-function valuesLost(plan: PrecisionPlan, setting: FormatSetting, tensors: readonly TensorCheck[]): { format: FormatName; tensors: number; first: string } | undefined {
+function valuesLost(plan: PrecisionPlan, setting: FormatSetting, tensors: readonly TensorCheck[]): FormatCheck["valuesLost"] {
   if (setting.evaluated !== plan) return undefined;
   let count = 0;
   let first = "";
@@ -1149,7 +1150,7 @@ function valuesLost(plan: PrecisionPlan, setting: FormatSetting, tensors: readon
     if (!loses) continue;
     if (count++ === 0) first = tensor.id;
   }
-  return count === 0 ? undefined : { format: setting.format, tensors: count, first };
+  return count === 0 ? undefined : { tensors: count, first };
 }
 
 // appends the check's assumptions to `notes`
