@@ -490,18 +490,12 @@ export function maxOfOffsetWindows(k: number, spread: ChannelSpread): OffsetWind
   for (let i = 0; i < z.length; i++) {
     const m = t * z[i]!;
     const w = weight[i]!;
+    q += w * phiSquare(m, common, a);
     if (sigma > 0) {
-      const r = m / sigma;
-      const cdf = normalCdf(r);
-      const pdf = normalPdf(r);
-      const positiveSquare = (m * m + common) * cdf + m * sigma * pdf;
-      q += w * (positiveSquare + a * a * (m * m + common - positiveSquare));
       mean += w * phiMean(m, sigma, a);
-      on += w * cdf;
+      on += w * normalCdf(m / sigma);
     } else {
-      const f = m > 0 ? m : a * m;
-      q += w * f * f;
-      mean += w * f;
+      mean += w * (m > 0 ? m : a * m);
       // the step at m = 0 is at z = 0, an even node of the grid: its midpoint value leaves Simpson's two panels exact
       on += w * (m > 0 ? 1 : m < 0 ? 0 : 0.5);
     }
@@ -566,12 +560,16 @@ function phiMean(m: number, s: number, a: number): number {
   return positive + a * (m - positive);
 }
 
-/** E[φ(m + s·z)²] for z standard normal, φ(x) = max(x, 0) + a·min(x, 0) (moments of a truncated normal). */
-function phiSquare(m: number, s: number, a: number): number {
+/**
+ * E[φ(m + S)²] for S ~ N(0, variance), φ(x) = max(x, 0) + a·min(x, 0): E[((m + S)⁺)²] = (m² + σ²)Φ(m/σ) + mσφ(m/σ)
+ * (moments of a truncated normal), and φ(m)² at σ = 0.
+ */
+function phiSquare(m: number, variance: number, a: number): number {
+  const s = Math.sqrt(Math.max(variance, 0));
   if (!(s > 0)) return m > 0 ? m * m : a * a * m * m;
   const r = m / s;
-  const positive = (m * m + s * s) * normalCdf(r) + m * s * normalPdf(r);
-  return positive + a * a * (m * m + s * s - positive);
+  const positive = (m * m + variance) * normalCdf(r) + m * s * normalPdf(r);
+  return positive + a * a * (m * m + variance - positive);
 }
 
 const kappaCache = new Map<string, { rectifier: number; maxima: number }>();
@@ -590,8 +588,6 @@ export function offsetChannelKappas(k: number, spread: ChannelSpread): { rectifi
   if (hit !== undefined) return hit;
   const { z, weight } = offsetGrid(k);
   const sigma = Math.sqrt(Math.max(between, 0));
-  const s = Math.sqrt(Math.max(within, 0));
-  const sp = Math.sqrt(Math.max(position * within, 0));
   const t = Math.sqrt(Math.max((1 - position) * within, 0));
   let f1 = 0;
   let f2 = 0;
@@ -600,9 +596,9 @@ export function offsetChannelKappas(k: number, spread: ChannelSpread): { rectifi
   for (let j = 0; j < OUTER.x.length; j++) {
     const mu = sigma * OUTER.x[j]!;
     const w = OUTER.weight[j]!;
-    const f = phiSquare(mu, s, a);
+    const f = phiSquare(mu, within, a);
     let g = 0;
-    for (let i = 0; i < z.length; i++) g += weight[i]! * phiSquare(mu + t * z[i]!, sp, a);
+    for (let i = 0; i < z.length; i++) g += weight[i]! * phiSquare(mu + t * z[i]!, position * within, a);
     f1 += w * f;
     f2 += w * f * f;
     g1 += w * g;
