@@ -261,7 +261,7 @@ export interface Gradient {
  * for Gaussian z): a per-element second moment N²·E[x²]²·var_w·rowSquares.
  */
 export interface Curvature {
-  /** E[M_ii] */
+  /** E[M_ii]; below a smooth unit with E[φ·φ''] > 0 the Hessian's, not Gauss–Newton's (src/ops/activation/analytic.ts) */
   diagonal: number;
   /** E[M_ii²] */
   diagonalSquare: number;

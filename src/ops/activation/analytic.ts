@@ -498,11 +498,11 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
   if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output), cross: crossCorrelationOf(output) };
   const curvature = output.curvature;
   if (curvature !== undefined && k === undefined) {
-    // M'' = Φ'·M·Φ' with Φ' = diag(φ'): on the diagonal E[φ'²], off it E[φ'_i·φ'_j] = E[φ']² (two units of one sample,
-    // independent weights) (derived, as Curvature)
+    // M'' = Φ'·M·Φ' with Φ' = diag(φ'): on the diagonal E[φ'²] (a smooth unit's φ·φ'' too: hessianDiagonal), off it
+    // E[φ'_i·φ'_j] = E[φ']² (two units of one sample, independent weights) (derived, as Curvature)
     const d2 = stash.derivativeSecond;
     const off = stash.derivativeMean * stash.derivativeMean;
-    gradient.curvature = diagonalPullback(curvature, d2, off);
+    gradient.curvature = diagonalPullback(curvature, HOMOGENEOUS.has(name) ? d2 : hessianDiagonal(name, stash), off);
     // the gradient holds M_ii·φ(u_i) of its own unit, which φ'(u_i) does not gate independently: its square is
     // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and its mean over the data, E[φ'φ]·M_ii, is the same for every
     // sample (a shared part the bias gradient sums coherently)
@@ -548,6 +548,23 @@ function channelGateRule(name: string, derivativeSecond: number): Text {
 
 function selfGateRule(name: string, derivativeSecond: number, ratio: number): Text {
   return () => `${name}: E[φ'²] = ${fmt(derivativeSecond)}, with the unit's own output the loss's curvature holds in its gradient: ${fmt(ratio)}`;
+}
+
+/**
+ * The curvature's diagonal below a smooth activation. A layer's gradient holds v·tr(∂δ/∂u)·x along its input x
+ * (Stein's lemma over its weights), and ∂δ_i/∂u_i = φ'_i²·M_ii + φ''_i·g_i with g_i holding M_ii·φ(u_i): a mean of
+ * M_ii·E[φ'² + φ·φ''] = M_ii·E[u·φ·φ']/q (own algebra, Stein's lemma; the length map's slope, Schoenholz et al. 2017
+ * ξ_q), not the Gauss–Newton E[φ'²]. Where E[φ·φ''] < 0 (tanh, sigmoid) limitTangent's bound already stands for it.
+ */
+function hessianDiagonal(name: string, stash: ActivationStash): number {
+  const input = stash.input;
+  const keep = 1 - input.zeroFraction;
+  const q = keep > 0 ? input.q / keep : 0;
+  if (!(q > 0)) return stash.derivativeSecond;
+  const { f, df } = activationFunction(name as ActivationName, stash.slope);
+  const d0 = derivativeAtZero(name as ActivationName, stash.slope ?? 0);
+  const hessian = (keep * gaussianExpectationSplit((u) => u * df(u) * f(u), q)) / q + input.zeroFraction * d0 * d0;
+  return Math.max(hessian, stash.derivativeSecond);
 }
 
 /** E[(φ'(u)·u)²] of an activation's input u (its zeros give 0) */
