@@ -358,6 +358,11 @@ class Phase {
         signal = { ...signal };
         delete signal.featureCovariance;
       }
+      if ((signal.sequenceExcess !== undefined && !CARRIES_SEQUENCE.has(layer.family)) || (signal.sequenceLinear !== undefined && layer.family !== "gated-feed-forward")) {
+        signal = { ...signal };
+        if (!CARRIES_SEQUENCE.has(layer.family)) delete signal.sequenceExcess;
+        if (layer.family !== "gated-feed-forward") delete signal.sequenceLinear;
+      }
       // the spread of two samples' cosines is followed through dense layers, activations, norms and residual sums only
       if ((signal.correlationSquare !== undefined || signal.sharedLogVar !== undefined) && !CARRIES_COSINE.has(layer.family)) {
         signal = { ...signal };
@@ -627,6 +632,8 @@ function weightNode(layer: string, w: GraphWeight, variance: number, rms: number
 const CARRIES_COSINE: ReadonlySet<string> = new Set(["dense", "activation", "residual", "layer-norm", "rms-norm", "batch-norm"]);
 const KEEPS_SHARED_SPREAD: ReadonlySet<string> = new Set(["layer-norm", "rms-norm", "dropout", "residual", "conv2d", "flatten", "max-pool", "average-pool"]);
 const CARRIES_COVARIANCE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "attention"]);
+// how a sequence's deviations fill the features (Signal.sequenceExcess) is followed through these only
+const CARRIES_SEQUENCE: ReadonlySet<string> = new Set(["dense", "layer-norm", "rms-norm", "residual", "attention", "gated-feed-forward"]);
 // a flatten keeps the curvature (restricted to one position's block) but not the covariance of two features
 const CARRIES_CURVATURE: ReadonlySet<string> = new Set(["dense", "activation", "layer-norm", "rms-norm", "dropout", "residual", "flatten", "attention"]);
 

@@ -102,6 +102,20 @@ export interface Signal {
    */
   featureCovariance?: number;
   /**
+   * D·E[tr Σ_s²]/E[tr Σ_s]² − 1 for Σ_s the covariance of the deviations from a sequence's mean over the positions of
+   * one sequence s (src/ops/sequence-excess.ts): two positions of one sequence have E[(x̃_j·x̃_j')²] = D·E[x̃²]²·(1 + ε),
+   * which the query gradient of attention without a causal mask reads. Absent: what featureCovariance gives for the
+   * deviations (carried through dense layers, layer and RMS norms, gated feed-forward layers, attention and residual
+   * sums, on inputs with positions)
+   */
+  sequenceExcess?: number;
+  /**
+   * set by a gated feed-forward layer on its output: the share of its deviations' energy that is, to first order, a map
+   * of its input's deviations of mean zero over the weights (each sequence's own), which a residual sum right above
+   * reads (src/ops/sequence-excess.ts summedExcess). Absent: 0
+   */
+  sequenceLinear?: number;
+  /**
    * set by a leaky ReLU on a zero-mean Gaussian input: its negative slope and the input's second moment, so that a
    * max-pool reads max φ(x) = φ(max x) (φ increasing) instead of taking the output as a Gaussian
    */

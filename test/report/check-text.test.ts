@@ -75,15 +75,20 @@ describe("the tensor table's legend", () => {
 
 describe("the tensor table shows what a subnormal finding judged", () => {
   it("has a subnormal noise column holding the number the finding compared with its limit", () => {
-    // transformer-encoder's binary16 plan: one query gradient at risk by its subnormal noise alone
-    const result = check(example("transformer-encoder.yaml"), { plan: "mixed-binary16" });
-    const flagged = result.tensors.flatMap((t) => t.risks.filter((r) => r.findings.some((f) => f.kind === "subnormal-values")));
+    // deep-sigmoid's binary16 plan: gradients of the upper blocks at risk by their subnormal noise alone (the
+    // transformer-encoder's last query gradient was, until the attention's pair width followed what one sequence fills)
+    const result = check(example("deep-sigmoid.yaml"), { plan: "mixed-binary16" });
+    const flagged = result.tensors.flatMap((t) =>
+      t.risks.filter((r) => r.verdict === "at-risk" && r.findings.length === 1 && r.findings[0]!.kind === "subnormal-values").map((r) => ({ tensor: t, risk: r })),
+    );
     expect(flagged.length).toBeGreaterThan(0);
-    const text = renderCheckText(result, { width: 400 });
+    const text = renderCheckText(result, { width: 400, all: true });
     const header = text.split("\n").find((line) => line.includes("overflow/step"))!;
     expect(header).toMatch(/flushed +subnormal noise +overflow\/step/);
-    const noise = flagged[0]!.findings.find((f) => f.kind === "subnormal-values")!.value;
-    const row = text.split("\n").find((line) => line.includes("activation-gradient:query") && line.includes("at risk"))!;
+    const { tensor, risk } = flagged[0]!;
+    const noise = risk.findings[0]!.value;
+    const row = text.split("\n").find((line) => line.includes(`${tensor.layer} `) && line.includes(` ${tensor.role} `) && line.includes("at risk"))!;
+    expect(row, `${tensor.id}'s row`).toBeDefined();
     expect(row.split(/ {2,}/)).toContain(formatProbability(noise));
     expect(text).toContain("subnormal noise the share of the squared norm that rounding the subnormal elements adds");
   });

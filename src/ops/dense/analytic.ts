@@ -7,6 +7,7 @@ import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
 import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
+import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
 
 /** What the dense backward rule needs from the forward pass. */
@@ -50,6 +51,8 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
     const varianceX = Math.max(input.q - sharedOf(input), 0);
     const row = varianceX * varianceX + (w.fanIn - 1) * (input.featureCovariance ?? 0) * input.q * input.q;
     output.featureCovariance = (variance * variance * w.fanIn * row) / (q * q);
+    // the same matrix maps the deviations of every sequence (mappedExcess); a bias moves only what positions share
+    if (positions > 1) output.sequenceExcess = mappedExcess(sequenceExcessOf(input, w.fanIn), w.fanIn, outWidth);
   }
   const ratio = input.q > 0 ? q / input.q : 0;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);

@@ -30,6 +30,7 @@ import type { Factor, AnalyticRule, BackwardResult, ForwardResult, Gradient, Inn
 import { activationKappa } from "../activation/moments.js";
 import { crossMoments } from "../activation/analytic.js";
 import { densePullback } from "../dense/analytic.js";
+import { gatedExcess, mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 
 const SOURCE = "gated product of independent gate and up: E[φ(g)²]·E[u²] (mean field, Poole et al. 2016)";
 
@@ -113,6 +114,15 @@ export const gatedFeedForwardRule: AnalyticRule<GatedStash> = {
     const downGain = ctx.variance(wd) * wd.fanIn;
     const output = linearOutput(downGain * product.q, product.logVar, D, downGain * (product.shared ?? 0));
     output.positionCorrelation = product.positionCorrelation ?? 0;
+    // in one sequence each unit's gate and up sit at means of their own, which scale its deviations (gatedExcess)
+    if (P > 1) {
+      const gated = gatedExcess(spec.activation, slopeOf(spec), gate.q, up.q, correlation, sequenceExcessOf(input, D), D, spec.hidden);
+      if (gated !== undefined) {
+        product.sequenceExcess = gated.excess;
+        output.sequenceExcess = mappedExcess(gated.excess, spec.hidden, D);
+        output.sequenceLinear = gated.linearShare;
+      }
+    }
     const ledger = ctx.ledger ? forwardLedger(spec, gateGain, upGain, m.second, gate.q, downGain) : undefined;
     const termSignal = (s: Signal, v: number): Signal => ({ ...s, q: s.q * v, mean: 0 });
     return {

@@ -98,6 +98,8 @@ export const normRule: AnalyticRule<NormStash> = {
     if (layer.family !== "batch-norm" && input.featureCovariance !== undefined && q > 0) {
       output.featureCovariance = ((gainSquared / denominator) ** 2 * input.featureCovariance * input.q * input.q) / (q * q);
     }
+    // (nearly) one scale per position leaves the shape of a sequence's deviations as it is (sequence-excess.ts)
+    if (layer.family !== "batch-norm" && input.sequenceExcess !== undefined) output.sequenceExcess = input.sequenceExcess;
     // each position is divided by (nearly) the same statistic, so the part two positions share scales like q, less
     // what the centring removes: each sample's feature mean (layer norm) or each feature's batch mean (batch norm)
     const normalisedPositionShared = Math.max(positionCorrelationOf(input) * input.q - removed, 0) / denominator;

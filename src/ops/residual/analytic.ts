@@ -11,6 +11,7 @@ import type { ActivationLayer, DropoutLayer, ResidualLayer } from "../../spec/ty
 import { tangentMoments, type ActivationStash } from "../activation/analytic.js";
 import type { NormStash } from "../norm/analytic.js";
 import { NO_FACTORS, crossCorrelationOf, factor, fmt, positionCorrelationOf, sharedOf, sumLogVar, tangentShare, weightOf } from "../common.js";
+import { sequenceExcessOf, summedExcess } from "../sequence-excess.js";
 import type { AnalyticRule, BackwardResult, BranchResults, Curvature, Factor, ForwardResult, Gradient, OpContext, Signal } from "../types.js";
 
 const SOURCE = "residual sum, q_out = q_x + α²·q_branch (Zhang, Dauphin & Ma 2019, Fixup §2)";
@@ -223,6 +224,13 @@ export const residualRule: AnalyticRule<ResidualStash> = {
     const width = layer.output.layout === "features" ? layer.output.features : 1;
     if (q > 0 && input.correlationSquare !== undefined && f.correlationSquare !== undefined) {
       output.correlationSquare = sumCorrelationSquare(input, f, branchQ, output.shared! / q, width);
+    }
+    // a sequence's deviations add as two randomly oriented parts, the branch's first order in the skip's deviations
+    // spreading the skip's (summedExcess)
+    if (width > 1 && (input.sequenceExcess !== undefined || f.sequenceExcess !== undefined)) {
+      const skipEnergy = input.q * (1 - positionCorrelationOf(input));
+      const branchEnergy = branchQ * (1 - positionCorrelationOf(f));
+      output.sequenceExcess = summedExcess(sequenceExcessOf(input, width), skipEnergy, sequenceExcessOf(f, width), branchEnergy, branchEnergy * (f.sequenceLinear ?? 0));
     }
     // the loss's curvature, which the tangent's growth limits, exists at the start of the horizon only
     const { meanJacobian, tangent } = followBranch(ctx, layer, branch.branchStashes, input.q, ctx.phase === "start");
