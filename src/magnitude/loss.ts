@@ -113,7 +113,7 @@ export function lossSeed(
       // ∂(p − y)/∂z = diag(p) − p pᵀ; its mean over Gaussian logits has E[p_j − p_j²] = 1/C − E[p²] on the diagonal and,
       // as every row sums to 0, −(1/C − E[p²])/(C − 1) off it (derived)
       const h = k * (1 / C - gaussianSoftmaxMoments(s2, C).second);
-      gradient.curvature = { diagonal: h, diagonalSquare: h * h, rowSquares: (h * h * C) / (C - 1) };
+      gradient.curvature = { diagonal: h, diagonalSquare: h * h, rowSquares: (h * h * C) / (C - 1), seed: true };
       // E[Σ_j z_j·(p_j − y_j)] = s²·Σ_j E[∂p_j/∂z_j] = s²·C·h/k per term (Stein's lemma; labels independent of the logits),
       // at a draw of logit variance v. A channel's share is read squared, as its mean square over draws: the root of
       // E[(v·(1/C − E[p²]))²] over v log-normal about the median (ln-variance V), by Gauss–Hermite quadrature
@@ -182,7 +182,7 @@ export function lossSeed(
   }
   // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
   if (endLoss === undefined) {
-    gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
+    gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k, seed: true };
     // E[Σ y·k(y − t)] = k·M·E[y²], targets independent of the outputs (as the seed, at the median draw)
     gradient.eulerSum = k * M * medianOf(output.q, V);
   }

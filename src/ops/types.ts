@@ -284,6 +284,17 @@ export interface Curvature {
   /** M·1 = 0, every row summing to zero (a layer norm's centring): M holds nothing of a mean its input shares over features */
   centred?: boolean;
   /**
+   * M is the loss's own (set by the seed, dropped by every pullback): the dense layer right below takes no pair of two
+   * samples' Wᵀ·M·W·x from it (src/ops/dense/analytic.ts)
+   */
+  seed?: boolean;
+  /**
+   * set by a dense layer that handed on two samples' pair of Wᵀ·M·W·x (the `shared` of its input gradient holds it):
+   * the activation right below then takes its own unit's pair as the difference from what its gate made of that
+   * (src/ops/activation/analytic.ts selfPair); dropped by every pullback
+   */
+  paired?: boolean;
+  /**
    * set once a norm's response (M − ρ·(tr M/n)·I, not a Gauss–Newton matrix) lies between this tensor and the loss: M
    * may then have negative eigenvalues, and a positive semidefinite matrix's bounds do not hold for it
    */
