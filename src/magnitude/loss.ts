@@ -180,9 +180,11 @@ export function lossSeed(
     // the seed's share e of the output's own spread: ln E[δ²] = e·ln‖y‖² + what the targets add (the delta method)
     gradient.coupling = { elasticity: Math.sqrt(seed.logVar / V), budget: V };
   }
-  // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part
+  // ∂δ/∂y = k·I: at the start the targets are independent of the inputs, so nothing cancels the outputs' own part. δ is
+  // k·y exactly, not to first order as p − y, so it is not marked `seed`: the dense layer below pairs two samples'
+  // Wᵀ·M·W·x (Curvature.seed)
   if (endLoss === undefined) {
-    gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k, seed: true };
+    gradient.curvature = { diagonal: k, diagonalSquare: k * k, rowSquares: k * k };
     // E[Σ y·k(y − t)] = k·M·E[y²], targets independent of the outputs (as the seed, at the median draw)
     gradient.eulerSum = k * M * medianOf(output.q, V);
   }

@@ -284,8 +284,8 @@ export interface Curvature {
   /** M·1 = 0, every row summing to zero (a layer norm's centring): M holds nothing of a mean its input shares over features */
   centred?: boolean;
   /**
-   * M is the loss's own (set by the seed, dropped by every pullback): the dense layer right below takes no pair of two
-   * samples' Wᵀ·M·W·x from it (src/ops/dense/analytic.ts)
+   * M is the cross-entropy loss's own (set by its seed, dropped by every pullback), p − y being M·z only to first order:
+   * the dense layer right below takes no pair of two samples' Wᵀ·M·W·x from it (src/ops/dense/analytic.ts)
    */
   seed?: boolean;
   /**
@@ -294,6 +294,11 @@ export interface Curvature {
    * (src/ops/activation/analytic.ts selfPair); dropped by every pullback
    */
   paired?: boolean;
+  /**
+   * of that pair, the part along each sample's own input x (Wᵀ·M·W·x holds E[Wᵀ·M·W]·x = v·tr M·x): v²·E[(tr M)²]·E[x_a·x_b],
+   * which a norm's projection off its own output direction removes (src/ops/norm/analytic.ts); dropped by every pullback
+   */
+  alignedPair?: number;
   /**
    * set once a norm's response (M − ρ·(tr M/n)·I, not a Gauss–Newton matrix) lies between this tensor and the loss: M
    * may then have negative eigenvalues, and a positive semidefinite matrix's bounds do not hold for it

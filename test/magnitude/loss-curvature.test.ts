@@ -161,7 +161,7 @@ describe("the curvature the loss seeds", () => {
   const output = { q: 1e-12, mean: 0, zeroFraction: 0, shape: "gaussian" as const, logVar: 0, gaussian: true };
   it("squared error: ∂δ/∂y = 2/M·I (mean over M = batch × outputs; common practice)", () => {
     const seed = lossSeed({ kind: "mean-squared-error", reduction: "mean", targetScale: 1 }, output, 8, 1, 4, 1, "start", undefined);
-    expect(seed.gradient.curvature).toEqual({ diagonal: 2 / 32, diagonalSquare: (2 / 32) ** 2, rowSquares: (2 / 32) ** 2, seed: true });
+    expect(seed.gradient.curvature).toEqual({ diagonal: 2 / 32, diagonalSquare: (2 / 32) ** 2, rowSquares: (2 / 32) ** 2 });
   });
   it("cross-entropy at equal logits: ∂(p − y)/∂z = diag(p) − p pᵀ with p = 1/C (common practice)", () => {
     const C = 10;

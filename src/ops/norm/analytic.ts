@@ -218,7 +218,10 @@ export const normRule: AnalyticRule<NormStash> = {
     // batch norm's Jacobian removes each feature's batch mean from the gradient (Ioffe & Szegedy 2015, backward pass)
     if (layer.family === "batch-norm") input.shared = 0;
     // two samples divide by their own s: E[1/s]² = E[1/s²]·e^(−V/4) for log-normal s² (as in sampleSpread)
-    else if (output.shared !== undefined) input.shared = ratio * spread ** 0.75 * output.shared;
+    // less the part of a dense layer's pair along each sample's own output (Curvature.alignedPair): the Jacobian
+    // (g/s)·(I − x̂·x̂ᵀ/n) removes it whole (own algebra; a 4-output squared-error head over an RMS norm: the norm took
+    // the gradient's sample correlation from 0.0102 to 0.0086, 600 draws, where it passed it on unchanged)
+    else if (output.shared !== undefined) input.shared = ratio * spread ** 0.75 * Math.max(output.shared - (curvature?.alignedPair ?? 0), 0);
     // the shared part is the output's, times the draw's statistic, whose spread the whole gradient gains too (own algebra)
     if (layer.family !== "batch-norm" && output.sharedLogVar !== undefined) input.sharedLogVar = output.sharedLogVar + (input.logVar - output.logVar);
     // positions keep what they share, less (batch norm) the part every sample shares, which the batch mean removes
