@@ -1,44 +1,10 @@
 /**
  * Specs generated in code for the benchmarks (no YAML parsing in the timed region).
  */
-import type { LayerSpec, NetworkSpec } from "../src/spec/types.js";
 
-/** A spec around `layers`, binary16 with a binary32 master copy, AdamW (momentum 0, as the spec reader gives adam and adamw), a short horizon. */
-export function base(name: string, layers: LayerSpec[], input: NetworkSpec["input"], loss: NetworkSpec["training"]["loss"]): NetworkSpec {
-  return {
-    source: "<bench>",
-    name,
-    description: "generated for the benchmark",
-    input,
-    training: {
-      batch: 32,
-      loss,
-      workers: 2,
-      workerGradients: "average",
-      accumulationSteps: 2,
-      optimizer: { kind: "adamw", learningRate: { peak: 1e-3, end: 1e-5 }, warmupSteps: 10, momentum: 0, betas: [0.9, 0.999], epsilon: 1e-8, weightDecay: 0 },
-      horizon: { steps: 1000, weightGrowth: 1.1, finalLoss: 0.5 },
-    },
-    precision: { name: "half", activations: "binary16", weights: "binary16", gradients: "binary16", optimizerStates: "binary32", masterWeights: "binary32", accumulate: "binary32", overflow: "saturate", flushSubnormals: false, scaling: "none" },
-    plans: [],
-    blocks: {},
-    layers,
-  };
-}
-
-/**
- * 500 dense + ReLU pairs of width 256 (He initialisation, biases): about 1,000 layers. `inputScale` (default 1)
- * moves every magnitude a little, so a benchmark can check a spec no earlier call has seen.
- */
-export function mlpSpec(inputScale = 1): NetworkSpec {
-  const layers: LayerSpec[] = [];
-  const he = { kind: "he", distribution: "normal", gain: 1 } as const;
-  for (let i = 0; i < 500; i++) {
-    layers.push({ family: "dense", name: `d${i}`, path: ["layers", 2 * i], width: 256, bias: true, init: he });
-    layers.push({ family: "activation", name: `a${i}`, path: ["layers", 2 * i + 1], activation: "relu", slope: 0 });
-  }
-  return base("mlp-1000", layers, { kind: "features", features: 256, positions: 1, scale: inputScale }, { kind: "mean-squared-error", reduction: "mean", targetScale: 1 });
-}
+// the 1,000-layer spec and its frame live in plain JavaScript, so the build-comparison scripts (bench/compare) time
+// the same network as these benches
+export { base, mlpSpec } from "./compare/specs.mjs";
 
 /**
  * The YAML file of {@link mlpSpec}: the spec a user would write for it, for benchmarks that run the command line (which

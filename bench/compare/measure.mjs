@@ -1,0 +1,43 @@
+/**
+ * What the comparison scripts share: the checking thread's processor time and one child process per round.
+ */
+import { execFileSync } from "node:child_process";
+import { readFileSync } from "node:fs";
+import { resolve } from "node:path";
+
+/**
+ * Milliseconds of processor time this thread has run (/proc/thread-self/schedstat, Linux). The kernel adds a running
+ * thread's time at its timer ticks (4 ms here), so time many calls together, never one.
+ */
+export function threadMs() {
+  return Number(readFileSync("/proc/thread-self/schedstat", "utf8").split(" ")[0]) / 1e6;
+}
+
+/** A build's check module and spec reader, from its dist folder. */
+export async function loadBuild(dist) {
+  const root = resolve(dist);
+  const { check } = await import(`${root}/check.js`);
+  const { parseSpec } = await import(`${root}/spec/index.js`);
+  return { check, parseSpec };
+}
+
+/** Runs `script` with `args` in a fresh node process and returns its one line of JSON. */
+export function child(script, args) {
+  return JSON.parse(execFileSync(process.execPath, [script, ...args], { encoding: "utf8", maxBuffer: 1 << 24 }));
+}
+
+/** Reads `--name value` options after the positional arguments. */
+export function options(argv, defaults) {
+  const positional = [];
+  const out = { ...defaults };
+  for (let i = 0; i < argv.length; i++) {
+    const arg = argv[i];
+    if (arg.startsWith("--")) {
+      const key = arg.slice(2);
+      if (!(key in defaults)) throw new Error(`unknown option ${arg}; known: ${Object.keys(defaults).map((k) => "--" + k).join(", ")}`);
+      out[key] = Number(argv[++i]);
+      if (!Number.isFinite(out[key])) throw new Error(`${arg} needs a number`);
+    } else positional.push(arg);
+  }
+  return { positional, options: out };
+}
