@@ -15,11 +15,11 @@ import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
-import { capWithin, farThreshold, overflowRiskOf } from "./settle.js";
+import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
-import { NO_FINDINGS, overflowFinding } from "./tensor-finding.js";
-import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { FOUND, NO_FINDINGS, overflowFinding } from "./tensor-finding.js";
+import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and
 // E[x²; |x| ≤ t]/r² ≤ √(2/π)·(t/r)³/3 (as src/risk/settle.ts takes them)
@@ -41,6 +41,15 @@ class Side {
   count = 0;
   /** the bound, 0 when none */
   bound = 0;
+  // settledRisk's numbers of the side (src/risk/tensor.ts), worked out when {@link countedFindings} first needs them:
+  // whether the bounds settled its flushed share as 0, the settle of the share below the smallest normal (UNSETTLED,
+  // or 0), and the shares (NaN: not worked out)
+  settleRead = false;
+  settled = false;
+  belowNormalSettled = UNSETTLED;
+  flushed = NaN;
+  belowNormal = NaN;
+  energy = NaN;
 
   /**
    * Reads a side's fields; false when its nonzero magnitudes may not follow the Gaussian law (a `bound` only caps them,
@@ -53,6 +62,10 @@ class Side {
     const spread = profile.log2Spread;
     const bound = profile.bound;
     this.profile = profile;
+    this.settleRead = false;
+    this.flushed = NaN;
+    this.belowNormal = NaN;
+    this.energy = NaN;
     this.rms = rms;
     this.count = rms > 0 ? Math.max(0, elements * (1 - zeroFraction)) : 0;
     this.m = spread > 0 ? spread * LN2 : 0;
@@ -202,4 +215,148 @@ export function decidedFindings(
   const severity: Exclude<Verdict, "fits"> = worst > t.overflowFails ? "fails" : "at-risk";
   const at = endRisk > startRisk ? "end" : "start";
   return overflowFinding(tensor.id, d.limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
+}
+
+// settledRisk's settle of a side's shares below the flush bound, by the same calls in the same order (src/risk/tensor.ts)
+function settle(side: Side, limits: RangeLimits): void {
+  if (side.settleRead) return;
+  const profile = side.profile as MagnitudeProfile;
+  const belowNormal = limits.flushBound >= limits.minNormal ? UNSETTLED : settledBelow(profile, limits.minNormal);
+  side.belowNormalSettled = belowNormal;
+  side.settled = belowNormal === 0 || settledBelow(profile, limits.flushBound) === 0;
+  side.settleRead = true;
+}
+
+// settledRisk's flushedFraction of a non-empty side
+function flushedShare(side: Side, limits: RangeLimits): number {
+  settle(side, limits);
+  if (side.flushed !== side.flushed) side.flushed = side.settled ? 0 : fractionBelow(side.profile as MagnitudeProfile, limits.flushBound);
+  return side.flushed;
+}
+
+// settledRisk's share below the smallest normal of a non-empty side (its subnormalFraction is this less flushedShare)
+function belowNormalShare(side: Side, limits: RangeLimits): number {
+  if (side.belowNormal !== side.belowNormal) {
+    settle(side, limits);
+    if (limits.flushBound >= limits.minNormal) side.belowNormal = flushedShare(side, limits);
+    else side.belowNormal = side.belowNormalSettled === 0 ? 0 : fractionBelow(side.profile as MagnitudeProfile, limits.minNormal);
+  }
+  return side.belowNormal;
+}
+
+// settledRisk's flushedEnergy of a non-empty side
+function energyShare(side: Side, limits: RangeLimits): number {
+  if (side.energy !== side.energy) {
+    settle(side, limits);
+    const profile = side.profile as MagnitudeProfile;
+    side.energy = side.settled || settledEnergyBelow(profile, limits.flushBound) === 0 ? 0 : energyBelow(profile, limits.flushBound);
+  }
+  return side.energy;
+}
+
+// Whether the side's bounds on its shares below the flush bound hold: a Gaussian law there (at or past a bound the
+// Gaussian's share is not the law's, as belowDecided takes it)
+function boundsHold(side: Side, limits: RangeLimits): boolean {
+  return !(side.bound > 0 && !(limits.flushBound < side.bound));
+}
+
+// The side's flushed share as settledRisk reports it where it may pass `lowest` (the lower threshold), else −1: by the
+// bound at half of it, as belowDecided decides
+function flushedPast(side: Side, d: FormatDecision): number {
+  if (side.count === 0) return -1;
+  const limits = d.limits;
+  if (boundsHold(side, limits) && capWithin(DENSITY * (limits.flushBound / side.rms), side.m, d.flushed / 2)) return -1;
+  return flushedShare(side, limits);
+}
+
+// The same for the side's flushed energy
+function energyPast(side: Side, d: FormatDecision): number {
+  if (side.count === 0) return -1;
+  const limits = d.limits;
+  if (boundsHold(side, limits)) {
+    const a = limits.flushBound / side.rms;
+    if (capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2)) return -1;
+  }
+  return energyShare(side, limits);
+}
+
+// The side's subnormal noise as settledRisk reports it where it may pass the limit, else −1: by the bound at half the
+// limit, then by the noise before the shares that may zero it (a share of subnormal elements of 0, unsettled)
+function noisePast(side: Side, d: FormatDecision): number {
+  if (side.count === 0) return -1;
+  const limits = d.limits;
+  if (boundsHold(side, limits) && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
+  const noise = subnormalNoise(side.profile as MagnitudeProfile, limits);
+  if (noise <= d.noiseLimit) return -1;
+  settle(side, limits);
+  if (side.settled) return noise;
+  return Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits)) === 0 ? 0 : noise;
+}
+
+// grade of src/risk/tensor.ts: the severity a value passing its thresholds takes, null for none
+function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "fits"> | null {
+  if (value > fails) return "fails";
+  if (value > atRisk) return "at-risk";
+  return null;
+}
+
+// a counted finding: no sentence and no moment (countedFindings)
+function counted(subject: string, d: FormatDecision, kind: FindingKind, severity: Exclude<Verdict, "fits">, value: number, threshold: number): Finding {
+  return { format: d.limits.format, subject, source: "tensor", kind, severity, value, threshold, sentence: "" };
+}
+
+/**
+ * The findings of a tensor whose findings are only counted (a weighed loss scale's: src/scale/pick.ts reads each one's
+ * kind and severity), under {@link decidedFindings}' conditions: the kinds, severities, values and thresholds that
+ * src/risk/tensor.ts's tensorFindings gives from its numbers, without a sentence or a moment (`at`). Each share is
+ * decided by its bound at half the lower threshold where that holds, else by the number itself, by the calls settledRisk
+ * makes: a finding's value is always such a number (the side a bound decided lies under it). The overflow probabilities
+ * and headroom are decided as {@link decidedFindings} decides them, so what is worked out here is only what a finding
+ * needs: no statistics (the footroom), and no overflow integral or share that a bound keeps under its threshold. Puts
+ * them at the start of FOUND (src/risk/tensor-finding.ts) and returns their count; −1 where the bounds do not read the
+ * law (a tensor judged from its numbers then).
+ */
+export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfile, end: MagnitudeProfile, same: boolean, decision: FormatDecision): number {
+  const d = decision;
+  const first = d.start;
+  const last = same ? first : d.end;
+  if (!first.read(start)) return -1;
+  if (!same && !last.read(end)) return -1;
+  const t = d.thresholds;
+  const subject = tensor.id;
+  let found = 0;
+  const startRisk = overflowDecided(first, d);
+  const endRisk = same ? startRisk : overflowDecided(last, d);
+  const worst = Math.max(startRisk, endRisk);
+  const overflow = grade(worst, d.atRisk, t.overflowFails);
+  if (overflow !== null) {
+    FOUND[found++] = counted(subject, d, d.limits.saturates ? "saturation" : "overflow", overflow, worst, overflow === "fails" ? t.overflowFails : d.atRisk);
+  } else {
+    // the headroom's finding: where a side does not keep the headroom by its bound, its headroom itself
+    const keepsLast = headroomDecided(last, d);
+    const keepsFirst = same || headroomDecided(first, d);
+    if (!keepsLast || !keepsFirst) {
+      const headroom = Math.min(keepsFirst ? Infinity : headroomOf(first, d), keepsLast ? Infinity : headroomOf(last, d));
+      // a headroom that is not a number (never for a side with elements) is judged from the numbers
+      if (headroom !== headroom) return -1;
+      FOUND[found++] = counted(subject, d, "little-headroom", "at-risk", headroom, t.headroomAtRisk);
+    }
+  }
+  const role = tensor.role;
+  if (role === "activation-gradient" || role === "weight-gradient") {
+    const value = Math.max(energyPast(first, d), same ? -1 : energyPast(last, d));
+    const energy = grade(value, t.energyAtRisk, t.energyFails);
+    if (energy !== null) FOUND[found++] = counted(subject, d, "gradient-energy-flushed", energy, value, energy === "fails" ? t.energyFails : t.energyAtRisk);
+  }
+  const flushValue = Math.max(flushedPast(first, d), same ? -1 : flushedPast(last, d));
+  const flushed = grade(flushValue, t.flushedAtRisk, t.flushedFails);
+  if (flushed !== null) FOUND[found++] = counted(subject, d, "flushed-values", flushed, flushValue, flushed === "fails" ? t.flushedFails : t.flushedAtRisk);
+  const noise = Math.max(noisePast(first, d), same ? -1 : noisePast(last, d));
+  if (noise > d.noiseLimit) FOUND[found++] = counted(subject, d, "subnormal-values", "at-risk", noise, d.noiseLimit);
+  return found;
+}
+
+// a side's headroom as settledRisk reports it
+function headroomOf(side: Side, d: FormatDecision): number {
+  return Math.log2(d.limits.maxFinite / profileStatistics(side.profile as MagnitudeProfile, d.thresholds).max);
 }

@@ -37,8 +37,8 @@ import {
   type TensorRiskOptions,
   type TensorStatistics,
 } from "./tensor.js";
-import { decidedFindings, FormatDecision } from "./decide.js";
-import { NO_FINDINGS } from "./tensor-finding.js";
+import { countedFindings, decidedFindings, FormatDecision } from "./decide.js";
+import { FOUND, NO_FINDINGS } from "./tensor-finding.js";
 import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -498,11 +498,33 @@ export function judgeScaled(
       }
       continue;
     }
+    const tensor = subjects.tensors[i - sites] as TensorPrediction;
+    // not held in the format: no findings (as judgeTensor judges it)
+    if (entryFormat(setting.evaluated, heldBy(tensor)) !== format) continue;
+    // the findings' kinds and severities alone, decided without the tensor's numbers where the bounds read its law
+    const found = countedTensor(tensor, setting, lossScale, subjects.arrays);
+    if (found >= 0) {
+      // FOUND holds them until the next tensor's judgement: copied out, as a visitor may keep them
+      const findings = FOUND.slice(0, found);
+      for (let k = 0; k < findings.length; k++) if (!visit(findings[k] as Finding, i, false)) return;
+      continue;
+    }
     // the findings alone: the tensor's risk objects are not made
-    for (const f of CheckedTensor.findingsIn(judgeTensor(subjects.tensors[i - sites] as TensorPrediction, settings, lossScale, complete, false, subjects.arrays, false, false, true), format)) {
+    for (const f of CheckedTensor.findingsIn(judgeTensor(tensor, settings, lossScale, complete, false, subjects.arrays, false, false, true), format)) {
       if (!visit(f, i, false)) return;
     }
   }
+}
+
+// A tensor's counted findings in a setting that holds it (src/risk/decide.ts countedFindings, into FOUND), or −1 where
+// judgeTensor judges it: a part of a stored array, a probability row, scale factors, a law the bounds do not read
+function countedTensor(tensor: TensorPrediction, setting: FormatSetting, lossScale: number, arrays: Map<string, TensorPrediction[]> | null): number {
+  if (setting.held.perTensorScaling || arrays?.has(tensor.id) === true || isProbabilityRow(tensor)) return -1;
+  const factor = lossScaleFactor(tensor.role, lossScale);
+  const start = factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
+  const same = sameDistribution(tensor.start, tensor.end);
+  const end = same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
+  return countedFindings(tensor, start, end, same, setting.decision);
 }
 
 /**
