@@ -465,7 +465,8 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
  * scale moves it there. `visit` gets each finding with its subject's index and whether it is conditional (at risk only
  * where an implementation keeps the value in the activation format, {@link isConditionalFinding}), and returns false to
  * stop: a caller comparing scales stops one once it cannot do better. The findings are made to be counted: their
- * numbers are judgePrediction's, but no sentence is written (a weighed scale's thousands of findings are never told).
+ * numbers are judgePrediction's, but no sentence is written (a weighed scale's thousands of findings are never told),
+ * and a tensor's finding decided by bounds (src/risk/decide.ts countedFindings) carries no moment (`at`).
  */
 export function judgeScaled(
   subjects: ScaledSubjects,

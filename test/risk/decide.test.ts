@@ -2,13 +2,14 @@ import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../../src/magnitude/types.js";
 import { erfc, normalPdf } from "../../src/numeric/normal.js";
-import { decidedFindings, FormatDecision } from "../../src/risk/decide.js";
+import { countedFindings, decidedFindings, FormatDecision } from "../../src/risk/decide.js";
+import { FOUND } from "../../src/risk/tensor-finding.js";
 import { capWithin } from "../../src/risk/settle.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { judgePrediction, limitsFor, planFor } from "../../src/risk/judge.js";
 import { noiseAtMost, noiseWithin, subnormalNoise } from "../../src/risk/subnormal-noise.js";
 import { riskProfile, tensorFormatRisk, tensorStatistics, type TensorRiskOptions } from "../../src/risk/tensor.js";
-import type { RangeLimits, RiskThresholds } from "../../src/risk/types.js";
+import type { Finding, RangeLimits, RiskThresholds } from "../../src/risk/types.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { predict } from "../../src/magnitude/index.js";
 import { buildGraph } from "../../src/graph/index.js";
@@ -190,6 +191,75 @@ describe("findings decided by bounds", () => {
     const calm = { ...hot, rms: 1 };
     const fits = { id: "a/activation", role: "activation", start: calm, end: calm } as unknown as TensorPrediction;
     expect(decidedFindings(fits, calm, calm, true, new FormatDecision(BINARY16, DEFAULT_THRESHOLDS))).toEqual([]);
+  });
+});
+
+// what a counted finding carries (src/risk/decide.ts countedFindings): a finding without its sentence and moment
+function countedPart(f: Finding): Omit<Finding, "sentence" | "at"> {
+  return { format: f.format, subject: f.subject, source: f.source, kind: f.kind, severity: f.severity, value: f.value, threshold: f.threshold };
+}
+
+// countedFindings's findings as an array (it leaves them at the start of FOUND), null where it leaves the tensor
+function counted(tensor: TensorPrediction, limits: RangeLimits, t: RiskThresholds): Omit<Finding, "sentence" | "at">[] | null {
+  const n = countedFindings(tensor, tensor.start, tensor.end, tensor.start === tensor.end, new FormatDecision(limits, t));
+  return n < 0 ? null : FOUND.slice(0, n).map(countedPart);
+}
+
+describe("findings that are only counted", () => {
+  it("have the kinds, severities, values and thresholds tensorFormatRisk gives from the numbers", () => {
+    let withFindings = 0;
+    const kinds = new Set<string>();
+    fc.assert(
+      fc.property(tensors, fc.constantFrom(BINARY16, BFLOAT16_FTZ, BINARY32, E5M2, E4M3_SATURATING), thresholds, (tensor, limits, t) => {
+        const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: t, countOnly: true };
+        const found = counted(tensor, limits, t);
+        // every Gaussian law is counted
+        expect(found).not.toBeNull();
+        const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options);
+        expect(found).toEqual(full.findings.map(countedPart));
+        if (full.findings.length > 1) withFindings++;
+        for (const f of full.findings) kinds.add(f.kind);
+      }),
+      { numRuns: 2500 },
+    );
+    // several findings per tensor, and every kind a Gaussian tensor can have
+    expect(withFindings).toBeGreaterThan(30);
+    expect([...kinds].sort()).toEqual(["flushed-values", "gradient-energy-flushed", "little-headroom", "overflow", "saturation", "subnormal-values"]);
+  });
+
+  it("have them where every threshold sits near the tensor's own numbers", () => {
+    fc.assert(
+      fc.property(
+        tensors,
+        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
+        fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
+        (tensor, limits, off) => {
+          // as for the decided findings: each at-risk threshold within 1.5 decades (binades for the headroom) of the
+          // worse end's number, the failing ones the defaults
+          const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS, countOnly: true };
+          const worst = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst;
+          const near = (value: number, k: number, otherwise: number): number => (value > 0 && value < 1 ? value * 10 ** (off[k] as number) : otherwise);
+          const t: RiskThresholds = {
+            ...DEFAULT_THRESHOLDS,
+            overflowAtRisk: near(worst.overflowRisk, 0, DEFAULT_THRESHOLDS.overflowAtRisk),
+            overflowFails: 0.5,
+            flushedAtRisk: near(worst.flushedFraction, 1, DEFAULT_THRESHOLDS.flushedAtRisk),
+            energyAtRisk: near(worst.flushedEnergy, 2, DEFAULT_THRESHOLDS.energyAtRisk),
+            subnormalNoiseAtRisk: near(worst.subnormalNoise, 3, DEFAULT_THRESHOLDS.subnormalNoiseAtRisk),
+            headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
+          };
+          const options: TensorRiskOptions = { ...base, thresholds: t };
+          expect(counted(tensor, limits, t)).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options).findings.map(countedPart));
+        },
+      ),
+      { numRuns: 1500 },
+    );
+  });
+
+  it("leave laws other than the Gaussian's to the numbers", () => {
+    const uniform = { elements: 4096, zeroFraction: 0, shape: "uniform" as const, rms: 1, log2Spread: 0 };
+    const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
+    expect(counted(other, BINARY16, DEFAULT_THRESHOLDS)).toBeNull();
   });
 });
 
