@@ -504,7 +504,8 @@ export function judgeScaled(
     if (entryFormat(setting.evaluated, heldBy(tensor)) !== format) continue;
     // the findings' kinds and severities alone, decided without the tensor's numbers where the bounds read its law
     const found = countedTensor(tensor, setting, lossScale, subjects.arrays);
-    if (found >= 0) {
+    if (found === 0) continue;
+    if (found > 0) {
       // FOUND holds them until the next tensor's judgement: copied out, as a visitor may keep them
       const findings = FOUND.slice(0, found);
       for (let k = 0; k < findings.length; k++) if (!visit(findings[k] as Finding, i, false)) return;
