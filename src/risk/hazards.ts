@@ -8,7 +8,7 @@ import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitud
 import { anyOf, LN2, normalSf, normalUpperQuantile } from "./_math.js";
 import { chiSquareTail } from "../numeric/chi-square.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
-import { normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { normalLogPdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
 import { energyBelowAtMost, gaussianAt, settledAnyAbove, settledEnergyBelow } from "./settle.js";
@@ -1048,19 +1048,24 @@ function countedOverflow(summed: MagnitudeProfile, level: number, bound: number)
 
 /**
  * Whether the probability that some of the n nonzero elements reach t in a step ({@link probabilityAnyAbove}) is at
- * most p, shown by a closed-form bound (for p of at least 1e-6: the rule's sums are within 1e-6 relative of the
- * integral, src/risk/laws.ts anyAboveSum, and their 1e-12 absolute slack is far below p). The integrand
- * g(z) = anyOf(share·P(|X| ≥ t | r), n) rises with the draw z, so E_z[g] ≤ Q(z₀) + g(z₀), and g(z₀) ≤ n·2Q(u₀) ≤
- * n·e^{−u₀²/2} (union and Chernoff bounds, common practice), u₀ = t/r at z₀: with Q(z₀) = p/2 and n·e^{−u₀²/2} ≤ p/2 the
- * probability is at most p. For the Gaussian magnitude laws only (settle.ts's gaussianAt); false where it cannot tell.
+ * most p, shown by a closed-form bound (for p of at least 1e-9: the rule's sums are within 1e-6 relative of the
+ * integral, src/risk/laws.ts anyAboveSum, and their 1e-12 absolute slack is at most 1e-3·p). The integrand
+ * g(z) = anyOf(share·P(|X| ≥ t | r), n) rises with the draw z and is at most 1, so E_z[g] ≤ Q(z₀) + ∫_{z<z₀} g·φ, and
+ * g(z) ≤ n·2Q(u) ≤ n·e^{−u²/2} (union and Chernoff bounds, common practice), u = t/r = u₀·e^{m(z₀−z)} (m = S·ln 2, u₀
+ * at z₀). Below z₀, u² ≥ u₀²·(1 + 2m(z₀ − z)) (e^x ≥ 1 + x) and φ(z) ≤ φ(z₀)·e^{z₀(z₀−z)}, so the integral is at most
+ * n·e^{−u₀²/2}·φ(z₀)/(m·u₀² − z₀) where m·u₀² > z₀, and at most n·e^{−u₀²/2} anyway (own algebra): with Q(z₀) = p/2
+ * and the integral's bound at most p/2 the probability is at most p. For the Gaussian magnitude laws only (settle.ts's
+ * gaussianAt); false where it cannot tell.
  */
 export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
-  if (!(p >= 1e-6 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
-  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  if (!(p >= 1e-9 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
+  const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
   // z₀ a little past the quantile of p/2 (normalUpperQuantile is good to 1e-7 relative in q)
   const far = normalUpperQuantile(p / 2) + 1e-3;
-  const u = (t / profile.rms) * Math.exp(-spread * LN2 * far);
-  return Math.log(n) - (u * u) / 2 <= Math.log(p / 2);
+  const u = (t / profile.rms) * Math.exp(-m * far);
+  const rate = m * u * u - far;
+  const below = rate > 0 ? Math.min(0, normalLogPdf(far) - Math.log(rate)) : 0;
+  return Math.log(n) - (u * u) / 2 + below <= Math.log(p / 2);
 }
 
 // The summed gradients of one side in the sum buffer's units: the engine's predicted sum (`output`) when it gives one,

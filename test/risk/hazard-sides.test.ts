@@ -5,6 +5,7 @@ import { evaluateHazard, plainNumber, type HazardContext, type HazardEvaluation 
 import { anyAboveAtMost } from "../../src/risk/hazards.js";
 import { nonzeroElements, probabilityAnyAbove } from "../../src/risk/profile.js";
 import { settledAnyAbove } from "../../src/risk/settle.js";
+import { normalSf } from "../../src/numeric/normal.js";
 import { probabilityWords, sharePercent } from "../../src/risk/words.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING, E5M2 } from "./limits.js";
 import { context, profile, site } from "./hazard-sites.js";
@@ -177,7 +178,7 @@ describe("a start that cannot fail beside an end that fails", () => {
     fc.assert(
       fc.property(
         quiet,
-        fc.constantFrom(1e-6, 1e-4, 2.5e-3, 0.1, 0.5),
+        fc.constantFrom(1e-9, 1e-8, 5e-7, 1e-6, 1e-4, 2.5e-3, 0.1, 0.5),
         fc.constantFrom<MagnitudeProfile["shape"]>("gaussian", "half-gaussian", "bounded"),
         (q, p, shape) => {
           const rms = 2 ** (16 - q.headroom / 4);
@@ -193,12 +194,37 @@ describe("a start that cannot fail beside an end that fails", () => {
     expect(said).toBeGreaterThan(100);
   });
 
-  it("says nothing for laws it does not bound, or p outside [1e-6, 1)", () => {
+  // A weighed scale's summed weight gradient of the 1,000-layer network: 2^18 below binary16's overflow level (2^16,
+  // IEEE 754-2019 Table 3.5), a spread of 3.1 binades, 17,000 elements, judged at half the at-risk threshold (5e-7).
+  // The draws below z₀ are bounded by their own tail, not by their whole mass (the Chernoff bound at z₀ alone,
+  // n·e^{−u₀²/2} ≤ p/2, does not hold here); the reference is the draw integral's definition by a fine trapezoid,
+  // E_z[1 − (1 − 2Q(t/r))^n], r = rms·2^{S·z}.
+  it("bounds a far tail by the draws below z₀, where the integral is under p", () => {
+    const level = BINARY16.overflowLevel;
+    const rms = level * 2 ** -18;
+    const drawn = profile({ rms, log2Spread: 3.1, elements: 17000 });
+    const p = 5e-7;
+    expect(anyAboveAtMost(drawn, level, 17000, p)).toBe(true);
+    const far = 5.0335; // Q(5.0335) < 2.5e-7 (normal tables)
+    const u0 = (level / rms) * 2 ** (-3.1 * far);
+    expect(Math.log(17000) - (u0 * u0) / 2).toBeGreaterThan(Math.log(p / 2));
+    let integral = 0;
+    const h = 1e-3;
+    for (let z = -12; z <= 12; z += h) {
+      const perElement = 2 * normalSf(level / (rms * 2 ** (3.1 * z)));
+      const any = -Math.expm1(17000 * Math.log1p(-Math.min(perElement, 1 - 1e-16)));
+      integral += any * Math.exp(-z * z / 2) / Math.sqrt(2 * Math.PI) * h;
+    }
+    expect(integral).toBeLessThan(p);
+    expect(integral).toBeGreaterThan(0);
+  });
+
+  it("says nothing for laws it does not bound, or p outside [1e-9, 1)", () => {
     const tail = profile({ rms: 1, log2Spread: 1, elements: 1024 });
     expect(anyAboveAtMost(tail, 2 ** 20, 1024, 0.01)).toBe(true);
     expect(anyAboveAtMost({ ...tail, shape: "uniform" }, 2 ** 20, 1024, 0.01)).toBe(false);
     expect(anyAboveAtMost({ ...tail, shape: "log-normal", elementLog2Spread: 1 }, 2 ** 20, 1024, 0.01)).toBe(false);
-    expect(anyAboveAtMost(tail, 2 ** 20, 1024, 1e-7)).toBe(false);
+    expect(anyAboveAtMost(tail, 2 ** 20, 1024, 1e-10)).toBe(false);
     expect(anyAboveAtMost(tail, 2 ** 20, 1024, 1)).toBe(false);
     // a threshold within the draws' reach is not bounded
     expect(anyAboveAtMost(tail, 2, 1024, 0.01)).toBe(false);
