@@ -45,7 +45,11 @@ export interface HazardContext {
    * them it is judged at its own gradient, as a site of the prediction is
    */
   weightGradients?: readonly TensorPrediction[];
-  /** the findings are only counted (the loss-scale pick weighs scales by their kinds and severities): no sentences */
+  /**
+   * the findings are only counted (the loss-scale pick weighs scales by their kinds and severities): no sentences, and
+   * the check keeps only the evaluations that do not fit (what a count reads of them: isConditionalFinding in judge.ts);
+   * an empty list is one shared frozen array
+   */
   countOnly?: boolean;
 }
 
@@ -243,14 +247,17 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
   // that tensor's (the first evaluation naming one), and so is its finding's subject
   let layer = site.layer;
   let input = site.input;
+  const counting = context.countOnly === true;
   for (let i = 0; i < start.count; i++) {
     const first = start.items[i] as Draft;
     const second = i < end.count ? (end.items[i] as Draft) : undefined;
     const endWorse = second !== undefined && isWorse(second, first);
     const worse = endWorse ? second : first;
-    const at = endWorse ? "end" : "start";
     const verdict = worse.verdict;
-    const sentence = context.countOnly === true ? "" : sentenceText(worse, site, context, ended ? at : null, origin);
+    // a count reads no evaluation that fits, and no sentence
+    if (counting && verdict === "fits") continue;
+    const at = endWorse ? "end" : "start";
+    const sentence = counting ? "" : sentenceText(worse, site, context, ended ? at : null, origin);
     const topInput = worse.topInput;
     const subject = topInput !== undefined ? worse.topLayer : site.layer;
     if (topInput !== undefined && input === site.input) {
@@ -302,8 +309,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
     terms: site.terms,
     input,
     origin,
-    evaluations: evaluations.slice(0, evaluationCount),
-    findings: findings.slice(0, findingCount),
+    evaluations: counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount),
+    findings: counting && findingCount === 0 ? NONE : findings.slice(0, findingCount),
   };
   if (keepConstant || site.constant !== undefined) check.constant = site.constant;
   if (site.gradient === true) check.gradient = true;
@@ -313,6 +320,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
 // evaluateHazard's working arrays (it runs to completion before it is entered again)
 const EVALUATIONS: HazardEvaluation[] = [];
 const FINDINGS: Finding[] = [];
+// a count-only check's empty lists
+const NONE = Object.freeze([]) as never[];
 
 function isWorse(a: Draft, b: Draft): boolean {
   const rank = VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict];

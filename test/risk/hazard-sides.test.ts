@@ -108,6 +108,44 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     );
   });
 
+  // A weighed loss scale's judgement only counts findings (HazardContext.countOnly): it takes a side's number as 0 where
+  // a closed-form bound puts it under half the lower threshold, and keeps the evaluations that do not fit. Its findings
+  // must be the full judgement's, kind, severity, value and threshold, and its evaluations the full judgement's that do
+  // not fit, with no sentence.
+  it("a count-only judgement finds what the full judgement finds (property)", () => {
+    let found = 0;
+    fc.assert(
+      fc.property(
+        gaussianLike,
+        fc.oneof(fc.double({ min: -90, max: 90, noNaN: true }), fc.double({ min: -0.5, max: 0.5, noNaN: true }), fc.constant(0)),
+        fc.integer({ min: 1, max: 64 }),
+        fc.boolean(),
+        plans,
+        (drawn, shift, terms, withOutput, plan) => {
+          const ctx = context({ gradients: plan.sums, scaling: plan.scaling, workers: plan.workers, workerGradients: plan.workerGradients, lossScale: 2 ** plan.log2LossScale });
+          const startOutput = withOutput ? toProfile(drawn, Math.log2(terms)) : undefined;
+          const endOutput = withOutput ? toProfile(drawn, shift + Math.log2(terms)) : undefined;
+          const sites = [
+            site({ kind: "gradient-sum", terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}), end: { input: toProfile(drawn, shift), ...(endOutput ? { output: endOutput } : {}) } }),
+            site({ kind: "gradient-sum", terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}) }),
+            site({ kind: "accumulation", gradient: true, terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}) }),
+          ];
+          for (const judged of sites) {
+            const full = evaluateHazard(judged, ctx);
+            const counted = evaluateHazard(judged, { ...ctx, countOnly: true });
+            const unsaid = <T extends { sentence: string }>(items: readonly T[]): T[] => items.map((item) => ({ ...item, sentence: "" }));
+            expect(counted.findings).toEqual(unsaid(full.findings));
+            expect(counted.evaluations).toEqual(unsaid(full.evaluations.filter((e) => e.verdict !== "fits")));
+            found += full.findings.length;
+          }
+        },
+      ),
+      { numRuns: 500 },
+    );
+    // findings were there to count in a good share of the runs
+    expect(found).toBeGreaterThan(200);
+  });
+
   it("an end without a predicted sum of its own takes the start's, as each side alone does", () => {
     const start = profile({ rms: 1e-3, log2Spread: 2, elements: 65536 });
     const output = profile({ rms: 4e-3, log2Spread: 2, elements: 65536 });
