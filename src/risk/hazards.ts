@@ -819,20 +819,33 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
   const t = context.thresholds;
   const lossScale = context.lossScale;
   const level = limits.overflowLevel;
-  const scaled = scaledIn(TERMS_SCALED, input, lossScale);
-  let overflow = partialSumsOverflow(scaled, terms, level, false);
-  if (output !== undefined && overflow < 1) {
+  const flushBound = limits.flushBound;
+  // findings only counted: the bounds read the unscaled profiles at the levels moved by the loss scale (they read
+  // t/rms), a number under half the lower threshold stands as 0 (graded "fits" either way, and beside a larger number
+  // it leaves their maximum as it is), and a profile is scaled only for a number they leave open
+  const counting = context.countOnly === true;
+  let scaled: MagnitudeProfile | null = null;
+  let overflow = 0;
+  if (!(counting && sumFarBelow(input, level / lossScale, terms))) {
+    scaled = scaledIn(TERMS_SCALED, input, lossScale);
+    overflow = partialSumsOverflow(scaled, terms, level, false);
+  }
+  if (output !== undefined && overflow < 1 && !(counting && anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2))) {
     const sum = scaledIn(SUM_SCALED, output, lossScale);
     if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
   }
-  const flushBound = limits.flushBound;
-  const lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
+  let lost = 0;
+  if (!(counting && energyBelowAtMost(input, flushBound / lossScale, Math.min(t.energyAtRisk, t.energyFails) / 2))) {
+    if (scaled === null) scaled = scaledIn(TERMS_SCALED, input, lossScale);
+    lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
+  }
   putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
     t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_ACCUMULATION_ERROR, 0, false);
   putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, level / Math.sqrt(terms) / lossScale,
     t.overflowAtRisk, t.overflowFails, false, GRADIENT_ACCUMULATION_OVERFLOW, 0, false);
+  // the terms' rms at the loss scale, as scaledIn makes it
   putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", lost, flushBound / lossScale,
-    t.energyAtRisk, t.energyFails, false, GRADIENT_ACCUMULATION_FLUSH, scaled.rms, false);
+    t.energyAtRisk, t.energyFails, false, GRADIENT_ACCUMULATION_FLUSH, lossScale === 1 ? input.rms : input.rms * lossScale, false);
 }
 
 // Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw
@@ -959,6 +972,10 @@ function gradientSumSides(
   const terms = Math.max(1, site.terms);
   const format = FORMATS[limits.format];
   const scaling = format.bits === 8 ? (context.scaling ?? "none") : "none";
+  if (scaling === "none" && context.countOnly === true) {
+    countedSums(site, siteEnd, context, start, end);
+    return;
+  }
   const block = scaling === "block" ? blockScaledRiskCached(format) : null;
   const lossScale = context.lossScale;
   const sides = siteEnd !== null && siteEnd !== undefined && end !== null;
@@ -1050,6 +1067,80 @@ function gradientSumSides(
   }
 }
 
+/**
+ * {@link gradientSumSides} for a count (HazardContext.countOnly) in a format without scale factors, into the same drafts:
+ * a side's overflow probability or flushed share that a closed-form bound puts under half the lower threshold is taken as
+ * 0 (graded "fits" either way), the bounds reading the unscaled profiles at the levels moved by the factors (they read
+ * t/rms); a profile is scaled only for the number they leave open, which is then the judgement's own.
+ */
+function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, context: HazardContext, start: DraftList, end: DraftList | null): void {
+  const limits = context.gradientSums;
+  const t = context.thresholds;
+  const terms = Math.max(1, site.terms);
+  const lossScale = context.lossScale;
+  const sides = siteEnd !== null && siteEnd !== undefined && end !== null;
+  const level = limits.overflowLevel;
+  const overflowAtRisk = overflowAtRiskThreshold(t, false);
+  const overflowBound = Math.min(overflowAtRisk, t.overflowFails) / 2;
+  const startSum = site.output !== undefined ? site.output : site.input;
+  // as summedIn scales it: the predicted sum by the loss scale, else one contribution by the loss scale times the terms
+  const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow",
+    countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), level / lossScale,
+    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, false);
+  if (sides) {
+    const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
+    const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
+    const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow",
+      countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), level / lossScale,
+      overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, false);
+  }
+  if (context.workerGradients === "average" && context.workers > 1) {
+    const workers = context.workers;
+    const flushBound = Math.min(t.energyAtRisk, t.energyFails) / 2;
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush",
+      countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound), limits.flushBound * workers,
+      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    if (sides) {
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush",
+        countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound), limits.flushBound * workers,
+        t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    }
+  }
+  const error = sumRoundingError(terms, limits.unitRoundoff);
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
+    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  if (sides) {
+    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
+      t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  }
+}
+
+// a summed side's overflow probability where only its finding counts (no scale factors): 0 where the bound keeps it at
+// most `bound`, else that of `sum` times `factor`, scaled into `slot`
+function countedSumOverflow(slot: MagnitudeProfile, sum: MagnitudeProfile, factor: number, level: number, bound: number): number {
+  return anyAboveAtMost(sum, level / factor, nonzeroElements(sum), bound) ? 0 : probabilityAnyAbove(scaledIn(slot, sum, factor), level);
+}
+
+// the share a division by the worker count flushes where only its finding counts (no scale factors): 0 where the bound
+// on the divided gradients keeps it at most `bound`, else lostEnergy's, the gradients scaled into the slots
+function countedLost(
+  scaledSlot: MagnitudeProfile,
+  dividedSlot: MagnitudeProfile,
+  input: MagnitudeProfile,
+  lossScale: number,
+  workers: number,
+  limits: RangeLimits,
+  t: RiskThresholds,
+  bound: number,
+): number {
+  if (energyBelowAtMost(input, (limits.flushBound * workers) / lossScale, bound)) return 0;
+  const scaled = scaledIn(scaledSlot, input, lossScale);
+  const divided = scaledIn(dividedSlot, scaled, 1 / workers);
+  return lostEnergy(scaled, divided, limits.flushBound, null, "none", limits, t);
+}
+
 // a summed side's overflow probability where only its finding counts: 0 where the bound keeps it at most `bound`
 function countedOverflow(summed: MagnitudeProfile, level: number, bound: number): number {
   return anyAboveAtMost(summed, level, nonzeroElements(summed), bound) ? 0 : probabilityAnyAbove(summed, level);
@@ -1069,13 +1160,23 @@ function countedOverflow(summed: MagnitudeProfile, level: number, bound: number)
 export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
   if (!(p >= 1e-9 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
-  // z₀ a little past the quantile of p/2 (normalUpperQuantile is good to 1e-7 relative in q)
-  const far = normalUpperQuantile(p / 2) + 1e-3;
+  // z₀ a little past the quantile of p/2 (normalUpperQuantile is good to 1e-7 relative in q); asked site after site
+  // for the same p: the last p's numbers kept
+  if (p !== AT_MOST[0]) {
+    const far = normalUpperQuantile(p / 2) + 1e-3;
+    AT_MOST[0] = p;
+    AT_MOST[1] = far;
+    AT_MOST[2] = normalLogPdf(far);
+    AT_MOST[3] = Math.log(p / 2);
+  }
+  const far = AT_MOST[1] as number;
   const u = (t / profile.rms) * Math.exp(-m * far);
   const rate = m * u * u - far;
-  const below = rate > 0 ? Math.min(0, normalLogPdf(far) - Math.log(rate)) : 0;
-  return Math.log(n) - (u * u) / 2 + below <= Math.log(p / 2);
+  const below = rate > 0 ? Math.min(0, (AT_MOST[2] as number) - Math.log(rate)) : 0;
+  return Math.log(n) - (u * u) / 2 + below <= (AT_MOST[3] as number);
 }
+// the p last asked of anyAboveAtMost, its z₀, ln φ(z₀) and ln(p/2)
+const AT_MOST = new Float64Array(4).fill(Number.NaN);
 
 // The summed gradients of one side in the sum buffer's units: the engine's predicted sum (`output`) when it gives one,
 // else `terms` times one contribution, after the loss scale
