@@ -957,7 +957,8 @@ const SETTLED_SIDE = 1e-10;
  * side whose overflow probability or flushed share the closed-form bounds of src/risk/settle.ts put below SETTLED_SIDE
  * is not integrated where the other side's number, integrated, is above it: that side's draft then holds SETTLED_SIDE,
  * a bound on its number, which the choice of the worse side reads as it would read the number (every verdict rises
- * with the number).
+ * with the number). Likewise the side likely the larger is computed first, and the other is not where a bound puts it
+ * under a sixteenth of that number (overflowBeside, lostBeside): the sides of most sums lie binades apart.
  */
 function gradientSumSides(
   site: HazardSite,
@@ -1000,19 +1001,16 @@ function gradientSumSides(
   } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
     startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
-  } else if (
-    settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) !== 0 &&
-    anyAboveAtMost(startSummed, startLevel, nonzeroElements(startSummed), t.overflowFails / 4)
-  ) {
-    // the start cannot fail: an end that fails is the worse side whatever the start's number, which then holds its bound
+  } else if (overflowReach(endSummed, endLevel) > overflowReach(startSummed, startLevel)) {
+    // the end likely the larger: integrated first, the start then bounded beside it
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
-    startOverflow = endOverflow > t.overflowFails ? t.overflowFails / 4 : probabilityAnyAbove(startSummed, startLevel);
+    startOverflow = overflowBeside(startSummed, startLevel, endOverflow, t.overflowFails);
   } else {
     startOverflow = probabilityAnyAbove(startSummed, startLevel);
     endOverflow =
       startOverflow > SETTLED_SIDE && settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0
         ? SETTLED_SIDE
-        : probabilityAnyAbove(endSummed, endLevel);
+        : overflowBeside(endSummed, endLevel, startOverflow, t.overflowFails);
   }
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
     overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
@@ -1042,12 +1040,18 @@ function gradientSumSides(
       if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
         endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
         startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+      } else if (flushReach(endDivided, endLevelDivided) > flushReach(startDivided, startLevelDivided)) {
+        // the end likely the larger: computed first, the start then bounded beside it
+        endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+        startLost = lostBeside(startDivided, startLevelDivided, endLost) ? endLost * BESIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
       } else {
         startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
         endLost =
           startLost > SETTLED_SIDE && settledEnergyBelow(endDivided, endLevelDivided) === 0
             ? SETTLED_SIDE
-            : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+            : lostBeside(endDivided, endLevelDivided, startLost)
+              ? startLost * BESIDE
+              : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
       }
     }
     putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLost, startLevelDivided * workers,
@@ -1141,6 +1145,46 @@ function countedLost(
   return lostEnergy(scaled, divided, limits.flushBound, null, "none", limits, t);
 }
 
+// A side of a gradient sum computed beside the other's number `other` is taken as at most `other`·BESIDE where a closed-form
+// bound shows its draw integral is (anyAboveAtMost, energyBelowAtMost): then the number the judgement would compute is
+// below `other` too, as the any-above sums are within 1e-6 relative and 1e-12 absolute of the integral (laws.ts) and
+// the energy shares within 2e-7 relative, or 2e-19 absolute under 1e-6 (share-tables.test.ts), far inside a factor 16
+// for an `other` of at least BESIDE_FLOOR. Its draft holds that bound: the other side stays the worse (a lower number
+// has no higher verdict), which is the one choice the draft is read for.
+const BESIDE = 1 / 16;
+const BESIDE_FLOOR = 1e-10;
+
+// the overflow probability of the side beside `other`, the other side's: at most `other`·BESIDE by the bound, else
+// integrated; where `other` fails, at most a quarter of the fails threshold does as well (the end that fails is the
+// worse side whatever the start's number)
+function overflowBeside(summed: MagnitudeProfile, level: number, other: number, fails: number): number {
+  if (other >= BESIDE_FLOOR) {
+    const bound = other > fails ? Math.max(other * BESIDE, fails / 4) : other * BESIDE;
+    if (anyAboveBounded(summed, level, nonzeroElements(summed), bound)) return bound;
+  }
+  return probabilityAnyAbove(summed, level);
+}
+
+// whether the flushed share lost by the division, at most the divided gradients' energy share below the level, is
+// bounded at `other`·BESIDE
+function lostBeside(divided: MagnitudeProfile, level: number, other: number): boolean {
+  return other >= BESIDE_FLOOR && energyBelowAtMost(divided, level, other * BESIDE);
+}
+
+// Which side of a gradient sum to compute first: the one whose number is likely larger, by a rough reach in binades
+// (the drawn scale at about 5 standard deviations against the level, the draws that carry a far tail); only the work
+// depends on it, not the numbers reported
+function overflowReach(summed: MagnitudeProfile, level: number): number {
+  return Math.log2(summed.rms / level) + 5 * Math.max(0, summed.log2Spread);
+}
+
+// the same for the share below the flush level: a Gaussian's energy share below t grows as (t/r)³, over draws
+// E[r^−3] = rms^−3·e^{(3·S·ln 2)²/2} (the log-normal's moment), in binades
+function flushReach(divided: MagnitudeProfile, level: number): number {
+  const m = 3 * Math.max(0, divided.log2Spread) * LN2;
+  return 3 * Math.log2(level / divided.rms) + (m * m) / (2 * LN2);
+}
+
 // a summed side's overflow probability where only its finding counts: 0 where the bound keeps it at most `bound`
 function countedOverflow(summed: MagnitudeProfile, level: number, bound: number): number {
   return anyAboveAtMost(summed, level, nonzeroElements(summed), bound) ? 0 : probabilityAnyAbove(summed, level);
@@ -1158,7 +1202,13 @@ function countedOverflow(summed: MagnitudeProfile, level: number, bound: number)
  * gaussianAt); false where it cannot tell.
  */
 export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
-  if (!(p >= 1e-9 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
+  return p >= 1e-9 && anyAboveBounded(profile, t, n, p);
+}
+
+// {@link anyAboveAtMost}'s bound for any p in (0, 1): whether the draw integral itself is at most p (the caller keeps
+// the rule's slack in mind)
+function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
+  if (!(p > 0 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
   // z₀ a little past the quantile of p/2 (normalUpperQuantile is good to 1e-7 relative in q); asked site after site
   // for the same p: the last p's numbers kept
