@@ -5,10 +5,10 @@
 import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
-import { anyOf, LN2, normalSf, normalUpperQuantile } from "./_math.js";
+import { anyOf, LN2, normalSf } from "./_math.js";
 import { chiSquareTail } from "../numeric/chi-square.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
-import { normalLogPdf, normalSf as preciseNormalSf } from "../numeric/normal.js";
+import { normalLogPdf, normalSf as preciseNormalSf, normalUpperQuantile as preciseUpperQuantile } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
 import { energyBelowAtMost, gaussianAt, settledAnyAbove, settledEnergyBelow } from "./settle.js";
@@ -613,7 +613,9 @@ function madeBySum(site: HazardSite): string {
 // profiles below, laid out as magnitude/profile.ts's profileOf literal (every key, absent ones undefined, in its order),
 // so the functions that read it see one layout; the profile itself for a factor 1. The gradient sums' summed, scaled
 // and divided profiles are read by the laws while a site is judged and kept by nothing (no draft or result holds a
-// profile of theirs), so a thousand sites need not make thousands of profiles.
+// profile of theirs), so a thousand sites need not make thousands of profiles. Only the fields the risk module reads
+// are written: the engine's own moments and correlations (meanSquare, maxElement, sampleCorrelation,
+// positionCorrelation, coherentRms) are read nowhere in src/risk and stay undefined in the slots.
 function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: number): MagnitudeProfile {
   if (factor === 1) return profile;
   const bound = profile.bound;
@@ -622,14 +624,9 @@ function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: num
   slot.shape = profile.shape;
   slot.rms = profile.rms * factor;
   slot.log2Spread = profile.log2Spread;
-  slot.meanSquare = profile.meanSquare;
-  slot.maxElement = profile.maxElement;
   slot.bound = bound !== undefined ? bound * factor : undefined;
   slot.elementLog2Spread = profile.elementLog2Spread;
   slot.mixture = profile.mixture;
-  slot.sampleCorrelation = profile.sampleCorrelation;
-  slot.positionCorrelation = profile.positionCorrelation;
-  slot.coherentRms = profile.coherentRms;
   return slot;
 }
 
@@ -1210,10 +1207,10 @@ export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, 
 function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
   if (!(p > 0 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
-  // z₀ a little past the quantile of p/2 (normalUpperQuantile is good to 1e-7 relative in q); asked site after site
-  // for the same p: the last p's numbers kept
+  // z₀ a little past the quantile of p/2 (src/numeric's, exact to rounding after its Halley steps); asked site after
+  // site for the same p: the last p's numbers kept
   if (p !== AT_MOST[0]) {
-    const far = normalUpperQuantile(p / 2) + 1e-3;
+    const far = preciseUpperQuantile(p / 2) + 1e-3;
     AT_MOST[0] = p;
     AT_MOST[1] = far;
     AT_MOST[2] = normalLogPdf(far);
