@@ -999,16 +999,16 @@ function gradientSumSides(
   } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
     startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
-  } else if (overflowReach(endSummed, endLevel) > overflowReach(startSummed, startLevel)) {
-    // the end likely the larger: integrated first, the start then bounded beside it
-    endOverflow = probabilityAnyAbove(endSummed, endLevel);
-    startOverflow = overflowBeside(startSummed, startLevel, endOverflow, t.overflowFails);
   } else {
-    startOverflow = probabilityAnyAbove(startSummed, startLevel);
-    endOverflow =
-      startOverflow > SETTLED_SIDE && settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0
-        ? SETTLED_SIDE
-        : overflowBeside(endSummed, endLevel, startOverflow, t.overflowFails);
+    const endSettled = settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0;
+    if (!endSettled && overflowReach(endSummed, endLevel) > overflowReach(startSummed, startLevel)) {
+      // the end likely the larger: integrated first, the start then bounded beside it
+      endOverflow = probabilityAnyAbove(endSummed, endLevel);
+      startOverflow = overflowBeside(startSummed, startLevel, endOverflow, t.overflowFails);
+    } else {
+      startOverflow = probabilityAnyAbove(startSummed, startLevel);
+      endOverflow = startOverflow > SETTLED_SIDE && endSettled ? SETTLED_SIDE : overflowBeside(endSummed, endLevel, startOverflow, t.overflowFails);
+    }
   }
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
     overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
@@ -1038,18 +1038,21 @@ function gradientSumSides(
       if (settledEnergyBelow(startDivided, startLevelDivided) === 0) {
         endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
         startLost = endLost > SETTLED_SIDE ? SETTLED_SIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
-      } else if (flushReach(endDivided, endLevelDivided) > flushReach(startDivided, startLevelDivided)) {
-        // the end likely the larger: computed first, the start then bounded beside it
-        endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
-        startLost = lostBeside(startDivided, startLevelDivided, endLost) ? endLost * BESIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
       } else {
-        startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
-        endLost =
-          startLost > SETTLED_SIDE && settledEnergyBelow(endDivided, endLevelDivided) === 0
-            ? SETTLED_SIDE
-            : lostBeside(endDivided, endLevelDivided, startLost)
-              ? startLost * BESIDE
-              : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+        const endSettled = settledEnergyBelow(endDivided, endLevelDivided) === 0;
+        if (!endSettled && flushReach(endDivided, endLevelDivided) > flushReach(startDivided, startLevelDivided)) {
+          // the end likely the larger: computed first, the start then bounded beside it
+          endLost = lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+          startLost = lostBeside(startDivided, startLevelDivided, endLost) ? endLost * BESIDE : lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+        } else {
+          startLost = lostEnergy(startScaled, startDivided, startLevelDivided, block, scaling, limits, t);
+          endLost =
+            startLost > SETTLED_SIDE && endSettled
+              ? SETTLED_SIDE
+              : lostBeside(endDivided, endLevelDivided, startLost)
+                ? startLost * BESIDE
+                : lostEnergy(endScaled, endDivided, endLevelDivided, block, scaling, limits, t);
+        }
       }
     }
     putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLost, startLevelDivided * workers,
