@@ -1211,23 +1211,26 @@ export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, 
 function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
   if (!(p > 0 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
-  // z₀ a little past the quantile of p/2 (src/numeric's, exact to rounding after its Halley steps); asked site after
-  // site for the same p: the last p's numbers kept
-  if (p !== AT_MOST[0]) {
-    const far = preciseUpperQuantile(p / 2) + 1e-3;
-    AT_MOST[0] = p;
-    AT_MOST[1] = far;
-    AT_MOST[2] = normalLogPdf(far);
-    AT_MOST[3] = Math.log(p / 2);
+  // shown for 2^k ≤ p (k = ⌊log2 p⌋), a stronger claim: z₀ and its numbers are then read off a table per binade of p
+  let k = Math.floor(Math.log2(p));
+  if (2 ** k > p) k--;
+  const at = -k * 3;
+  if (!(at < AT_MOST.length)) return false;
+  if (AT_MOST[at] !== AT_MOST[at]) {
+    // z₀ a little past the quantile of 2^k/2 (src/numeric's, exact to rounding after its Halley steps)
+    const far = preciseUpperQuantile(2 ** (k - 1)) + 1e-3;
+    AT_MOST[at] = far;
+    AT_MOST[at + 1] = normalLogPdf(far);
+    AT_MOST[at + 2] = (k - 1) * LN2;
   }
-  const far = AT_MOST[1] as number;
+  const far = AT_MOST[at] as number;
   const u = (t / profile.rms) * Math.exp(-m * far);
   const rate = m * u * u - far;
-  const below = rate > 0 ? Math.min(0, (AT_MOST[2] as number) - Math.log(rate)) : 0;
-  return Math.log(n) - (u * u) / 2 + below <= (AT_MOST[3] as number);
+  const below = rate > 0 ? Math.min(0, (AT_MOST[at + 1] as number) - Math.log(rate)) : 0;
+  return Math.log(n) - (u * u) / 2 + below <= (AT_MOST[at + 2] as number);
 }
-// the p last asked of anyAboveAtMost, its z₀, ln φ(z₀) and ln(p/2)
-const AT_MOST = new Float64Array(4).fill(Number.NaN);
+// per binade of p, 2^k for k = 0, −1, …, −99: z₀, ln φ(z₀) and ln(2^k/2), filled as asked (NaN until then)
+const AT_MOST = new Float64Array(300).fill(Number.NaN);
 
 // The summed gradients of one side in the sum buffer's units: the engine's predicted sum (`output`) when it gives one,
 // else `terms` times one contribution, after the loss scale
