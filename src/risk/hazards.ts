@@ -1147,11 +1147,12 @@ function countedLost(
 }
 
 // A side of a gradient sum computed beside the other's number `other` is taken as at most `other`·BESIDE where a closed-form
-// bound shows its draw integral is (anyAboveAtMost, energyBelowAtMost): then the number the judgement would compute is
-// below `other` too, as the any-above sums are within 1e-6 relative and 1e-12 absolute of the integral (laws.ts) and
-// the energy shares within 2e-7 relative, or 2e-19 absolute under 1e-6 (share-tables.test.ts), far inside a factor 16
-// for an `other` of at least BESIDE_FLOOR. Its draft holds that bound: the other side stays the worse (a lower number
-// has no higher verdict), which is the one choice the draft is read for.
+// bound shows its draw integral is (anyAboveAtMost, energyBelowAtMost; the flushed share lost is at most the divided
+// gradients' share below the level): then the number the judgement would compute is below `other` too, as the any-above
+// sums are within 1e-6 relative and 1e-12 absolute of the integral (laws.ts, any-above.test.ts) and the energy shares'
+// rows within 2e-7 relative, or 2e-19 absolute under 1e-6 (share-tables.test.ts), the rule within a factor 2 of any
+// segment's mass (settle.ts): all far inside a factor 16 for an `other` of at least BESIDE_FLOOR. Its draft holds that
+// bound: the other side stays the worse (a lower number has no higher verdict), the one choice the draft is read for.
 const BESIDE = 1 / 16;
 const BESIDE_FLOOR = 1e-10;
 
