@@ -488,17 +488,17 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       const terms = Math.max(1, site.terms);
       const head = GRADIENT_SUM_OVERFLOW_HEAD;
       if (!head.holds("", "", "", terms, 0, 0)) head.keep("", "", "", terms, 0, 0, `The sum of ${terms} gradient contributions of `);
-      // the probability as written between words kept for every sum of the format, side and verdict: most sums'
-      // probabilities read differently, so words keyed by them were made anew for nearly every sum
-      const unscaled = context.lossScale === 1 ? 1 : 0;
-      const middle = GRADIENT_SUM_OVERFLOW_MIDDLE;
-      if (!middle.holds(format, "", "", unscaled, 0, 0)) {
-        middle.keep(format, "", "", unscaled, 0, 0, `${unscaled === 1 ? "" : " after the loss scale"}) overflows ${format} with probability `);
-      }
       const tail = GRADIENT_SUM_OVERFLOW_TAIL;
+      const lossScale = context.lossScale;
+      // keyed by the probability as written: most sums that fail pass the limit with a probability of about 1, each
+      // a different double that reads the same
+      const probability = probabilityWords(value);
       const sideIndex = side === "" ? 0 : side === AT_START ? 1 : 2;
-      if (!tail.holds("", verdict, "", sideIndex, 0, 0)) tail.keep("", verdict, "", sideIndex, 0, 0, ` per step${side} (${verdictWord(verdict)}).`);
-      return head.text + gradientOf(site) + " (rms " + plainNumber(draft.extra) + middle.text + probabilityWords(value) + tail.text;
+      if (!tail.holds(format, verdict, probability, sideIndex, lossScale, 0)) {
+        tail.keep(format, verdict, probability, sideIndex, lossScale, 0,
+          `${lossScale === 1 ? "" : " after the loss scale"}) overflows ${format} with probability ${probability} per step${side} (${verdictWord(verdict)}).`);
+      }
+      return head.text + gradientOf(site) + " (rms " + plainNumber(draft.extra) + tail.text;
     }
     case GRADIENT_SUM_ERROR: {
       const terms = Math.max(1, site.terms);
@@ -589,7 +589,6 @@ function gradientSumErrorTail(value: number, verdict: Verdict, terms: number, un
 const ACCUMULATION_ERROR_TAIL = new Words();
 const ACCUMULATION_OVERFLOW_TAIL = new Words();
 const GRADIENT_SUM_OVERFLOW_HEAD = new Words();
-const GRADIENT_SUM_OVERFLOW_MIDDLE = new Words();
 const GRADIENT_SUM_OVERFLOW_TAIL = new Words();
 const GRADIENT_SUM_ERROR_HEAD = new Words();
 const GRADIENT_SUM_ERROR_TAIL = new Words();
