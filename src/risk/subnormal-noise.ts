@@ -7,7 +7,7 @@
 import type { MagnitudeProfile } from "../magnitude/types.js";
 import { hashWords, normalCdf, LN2 } from "./_math.js";
 import { normalLogSf } from "../numeric/normal.js";
-import { elementLaw, gaussianBelowOverDraws, gaussianRowsOverDraws, isConstantLike, isEmpty, lawParameter, mixtureOf, ruleOverDraws, shapeCode } from "./laws.js";
+import { elementLaw, isConstantLike, isEmpty, lawParameter, mixtureOf, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
 import type { RangeLimits } from "./types.js";
 
@@ -201,13 +201,6 @@ function tilted(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound
   if (isConstantLike(profile) || !(spread > 0)) return integral(profile, limits);
   const delta = limits.smallest;
   const c = 2 * spread * LN2;
-  const movedRms = profile.rms * 2 ** (-spread * c);
-  // the Gaussian laws' two shares as fractionBelow reads them, without a moved profile to read them from
-  const highShare = gaussianShareBelow(profile, movedRms, spread, limits.minNormal - delta / 2);
-  const lowShare = highShare === highShare ? gaussianShareBelow(profile, movedRms, spread, limits.flushBound) : Number.NaN;
-  if (lowShare === lowShare) {
-    return Math.min(1, Math.max(0, ((delta * delta) / 12 / (profile.rms * profile.rms)) * Math.exp((c * c) / 2) * (highShare - lowShare)));
-  }
   // the fields the shares read, in one literal (a spread of the whole profile copies every field, one by one)
   const moved: MagnitudeProfile = {
     elements: profile.elements,
@@ -221,19 +214,6 @@ function tilted(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound
   };
   const mass = fractionBelow(moved, limits.minNormal - delta / 2) - fractionBelow(moved, limits.flushBound);
   return Math.min(1, Math.max(0, ((delta * delta) / 12 / (profile.rms * profile.rms)) * Math.exp((c * c) / 2) * mass));
-}
-
-// fractionBelow's share at or below t of a Gaussian law (gaussian, half-gaussian, bounded above t) with a spread, at the
-// scale `rms`, by the same closed form or rows it reads them from; NaN where it would read another way (then the moved
-// profile is made and fractionBelow asked)
-function gaussianShareBelow(profile: MagnitudeProfile, rms: number, spread: number, t: number): number {
-  const shape = profile.shape;
-  if (!(rms > 0) || (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded")) return Number.NaN;
-  const bound = profile.bound;
-  if (!(bound === undefined || !(bound > 0) || t < bound)) return Number.NaN;
-  const closed = gaussianBelowOverDraws(t / rms, spread);
-  if (closed === closed) return closed;
-  return gaussianRowsOverDraws("below", Math.log2(t) - Math.log2(rms), spread);
 }
 
 // Every element equals the drawn scale r = rms·2^(S·z), z ~ N(0, 1): the share is noise/r² for the draws whose r lies in
