@@ -213,6 +213,8 @@ const HAS_ROUGH = 32;
 // evaluations of a curve that is monotone in exact arithmetic
 const ACROSS = 1e-9;
 type Curve = "overflow" | "flush";
+// the overflow edge's search steps down one binade at a time this many times below a start over the budget
+const LINEAR_BELOW = 8;
 
 // What a search knows of one curve: its tables by exponent (for the flush curve: k + flushShift), ascending by it, the
 // first 32 made and per tensor a bit for each that knows something of it (`known` visits those alone: a tensor is
@@ -326,7 +328,10 @@ class WindowSearch {
     }
     const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
     // highest k with the union bound within the budget (monotone: true then false as k grows)
-    const highest = lastTrue(o.lowestLog2, o.highestLog2, (k) => this.riskWithin(k, active), Number.isFinite(overflowGuess) ? overflowGuess : middle);
+    // (over the budget is shown by a few tensors' lower bounds, within it only by every tensor's upper bound: the
+    // search steps down a binade at a time below a start over the budget, where a gallop would pass the edge and
+    // answer within the budget twice)
+    const highest = lastTrue(o.lowestLog2, o.highestLog2, (k) => this.riskWithin(k, active), Number.isFinite(overflowGuess) ? overflowGuess : middle, LINEAR_BELOW);
     // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
     const lowest = this.flushEdge(active);
 
@@ -918,9 +923,11 @@ export function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: S
 
 /**
  * The largest integer k in [lo, hi] with pred(k) true, for pred true-then-false; null if pred(lo) is false.
- * Gallops from `start` (doubling steps) to bracket the change, then bisects the bracket (exported for tests).
+ * Gallops from `start` (doubling steps) to bracket the change, then bisects the bracket (exported for tests). Going
+ * down from a false start it first takes `linearBelow` steps of one: for a predicate whose true answers cost far more
+ * than its false ones, so that the search meets the change from above and answers true once, at the edge.
  */
-export function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number): number | null {
+export function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, start: number, linearBelow = 0): number | null {
   // a guess that is not a number (a curve the prediction could not carry) starts at the middle: from NaN the gallop
   // would never meet `hi` or `lo`, and the search would not end
   const from = Number.isNaN(start) ? Math.floor((lo + hi) / 2) : Math.min(hi, Math.max(lo, Math.round(start)));
@@ -942,6 +949,7 @@ export function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, s
   } else {
     b = from;
     let step = 1;
+    let linear = linearBelow;
     for (;;) {
       if (b === lo) return null;
       const next = Math.max(lo, b - step);
@@ -950,7 +958,8 @@ export function lastTrue(lo: number, hi: number, pred: (k: number) => boolean, s
         break;
       }
       b = next;
-      step *= 2;
+      if (linear > 0) linear--;
+      else step *= 2;
     }
   }
   while (b - a > 1) {

@@ -71,6 +71,25 @@ describe("the edge searches from a start that is not a number", () => {
     expect(calls()).toBeLessThanOrEqual(20);
   });
 
+  it("lastTrue with steps of one below a false start finds every edge a scan finds, answering true once when the edge is within those steps", () => {
+    // the reference is a plain scan of [lo, hi] for the last k with k ≤ edge
+    for (const start of [-40, -12, 0, 9, 64, Number.NaN]) {
+      for (const edge of [-41, -40, -13, -5, 0, 1, 8, 30, 64]) {
+        let scan: number | null = null;
+        for (let k = -40; k <= 64; k++) if (k <= edge) scan = k;
+        let trues = 0;
+        const { pred } = counted((k) => {
+          const t = k <= edge;
+          if (t) trues++;
+          return t;
+        });
+        expect(lastTrue(-40, 64, pred, start, 8)).toBe(scan);
+        const from = Number.isNaN(start) ? 12 : start;
+        if (from > edge && from - edge <= 9 && edge >= -40) expect(trues).toBe(1);
+      }
+    }
+  });
+
   it("lastTrue and firstTrue still say null when no exponent qualifies", () => {
     expect(lastTrue(-40, 64, counted(() => false).pred, Number.NaN)).toBeNull();
     expect(firstTrue(-40, 64, counted(() => false).pred, Number.NaN)).toBeNull();
