@@ -215,6 +215,8 @@ const ACROSS = 1e-9;
 type Curve = "overflow" | "flush";
 // the overflow edge's search steps down one binade at a time this many times below a start over the budget
 const LINEAR_BELOW = 8;
+// the union bound's first test takes this many tensors' lower bounds (overByFew)
+const FEW = 256;
 
 // What a search knows of one curve: its tables by exponent (for the flush curve: k + flushShift), ascending by it, the
 // first 32 made and per tensor a bit for each that knows something of it (`known` visits those alone: a tensor is
@@ -546,9 +548,37 @@ class WindowSearch {
       for (let i = 0; i < n; i++) if (active[i] === 1) sum += this.value("overflow", k, i);
       return Math.min(1, sum) <= budget;
     }
-    const answer = this.riskWithinByBounds(k, active);
+    const answer = !this.overByFew(k, active) && this.riskWithinByBounds(k, active);
     if (!answer) this.overBudget.push(k);
     return answer;
+  }
+
+  // Whether the lower bounds at k of the first few tensors in priority order (most likely to overflow first) already
+  // sum over the budget: the value there, else the rougher bounds' lower end (taken into the table, where the narrowing
+  // below would take them first), else the cheap bounds' low. Far above the edge one or two tensors say so, without a
+  // pass over every tensor; otherwise the narrowing decides, with what was taken here kept.
+  private overByFew(k: number, active: Uint8Array): boolean {
+    const budget = this.o.riskBudget;
+    const table = this.table("overflow", k);
+    const order = this.overflowOrder;
+    const zeroTo = this.zeroTo;
+    let low = 0;
+    let taken = 0;
+    for (let r = 0; r < this.n && taken < FEW; r++) {
+      const i = order[r] as number;
+      if (active[i] === 0 || k <= (zeroTo[i] as number)) continue;
+      taken++;
+      let flags = table.flags[i] as number;
+      if ((flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0) {
+        this.takeRough(k, i, table);
+        flags = table.flags[i] as number;
+      }
+      const a = (flags & HAS_VALUE) !== 0 ? (table.data[4 * i + 3] as number) : (flags & HAS_BOUNDS) !== 0 ? (table.data[4 * i] as number) : 0;
+      // a probability is at least 0; the lower bounds' sum is over the budget as riskWithinByBounds tests it
+      if (a > 0) low += a;
+      if (Math.min(1, low * (1 - 1e-12)) > budget) return true;
+    }
+    return false;
   }
 
   // Bounds on the union bound at k, narrowed until they decide. The bounds live in the search's scratch arrays

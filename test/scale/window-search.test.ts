@@ -130,6 +130,38 @@ describe("lossScaleWindow searches", () => {
     // the most flush-prone tensor is the last one (its curve sits furthest right), the most overflow-prone the first
     expect([w.lowerEdgeSetBy, w.upperEdgeSetBy]).toEqual(["layer299", "layer0"]);
   });
+
+  it("gives the definition's window where rougher overflow bounds come first, for sets of every size (the union bound's first few tensors, or all of them)", () => {
+    // rough bounds on either side of the exact risk, as loose as `slack` makes them, for stacks small and deep, so that
+    // the union bound is decided by a few tensors' lower ends far above the edge and by the whole narrowing near it
+    fc.assert(
+      fc.property(
+        fc.integer({ min: 1, max: 600 }),
+        fc.double({ min: -8, max: 8, noNaN: true }),
+        fc.constantFrom(0, 1e-3, 0.3, 0.9),
+        fc.integer({ min: -6, max: 10 }),
+        (count, centre, slack, guess) => {
+          const tensors: ScaledTensorCurves[] = Array.from({ length: count }, (_, i) => {
+            const overflowRisk = (k: number) => logistic((k - centre - (i % 7) * 0.1) * 1.5);
+            const flushedEnergy = (k: number) => logistic((centre - 6 - k) * 1.5);
+            return {
+              id: `layer${i}`,
+              overflowRisk,
+              flushedEnergy,
+              overflowRiskBounds: (k: number) => [0, Math.min(1, overflowRisk(k) * 1e3 + 1e-3)] as const,
+              overflowRiskRough: (k: number) => Math.min(1, overflowRisk(k) * (1 + 10 * slack) + slack * 1e-6),
+              overflowRiskRoughLower: (k: number) => overflowRisk(k) * (1 - slack),
+              edgeGuessesLog2: { overflow: Math.round(centre) + guess, flush: 0 },
+            };
+          });
+          const w = lossScaleWindow(tensors, OPTIONS);
+          const d = directWindow(tensors, OPTIONS);
+          expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+        },
+      ),
+      { numRuns: 60 },
+    );
+  });
 });
 
 // The searches visit tensors by a priority order: by key, ties by index. The reference is a plain comparison sort
