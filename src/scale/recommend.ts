@@ -191,9 +191,20 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
 class ShiftLevelTable {
   readonly levels: Float64Array;
   private readonly made: Uint8Array;
+  // per profile (2i start, 2i + 1 end), made with its levels: log2 of its rms, its spread, 1 where the shifted tails
+  // apply at some t (enclosureApplies without t: a positive rms and spread, a Gaussian law of 16 elements or more), and
+  // its bound (+∞ without one): the rough bounds read these instead of the profile's fields
+  readonly rmsLog2: Float64Array;
+  readonly spread: Float64Array;
+  readonly applies: Uint8Array;
+  readonly bound: Float64Array;
   constructor(n: number) {
     this.levels = new Float64Array(6 * n);
     this.made = new Uint8Array(n);
+    this.rmsLog2 = new Float64Array(2 * n);
+    this.spread = new Float64Array(2 * n);
+    this.applies = new Uint8Array(2 * n);
+    this.bound = new Float64Array(2 * n);
   }
 
   /** the offset of tensor i's levels, made now from its profiles where they are not yet */
@@ -202,9 +213,20 @@ class ShiftLevelTable {
     if (this.made[i] === 0) {
       shiftLevels(start.elements * (1 - start.zeroFraction), this.levels, base);
       shiftLevels(end.elements * (1 - end.zeroFraction), this.levels, base + 3);
+      this.numbers(2 * i, start);
+      this.numbers(2 * i + 1, end);
       this.made[i] = 1;
     }
     return base;
+  }
+
+  private numbers(j: number, profile: MagnitudeProfile): void {
+    this.rmsLog2[j] = Math.log2(profile.rms);
+    this.spread[j] = profile.log2Spread;
+    // enclosureApplies' tests that do not take t, in its order (src/scale/overflow-enclosure.ts)
+    const applies = profile.rms > 0 && profile.log2Spread > 0 && enclosedLaw(profile.shape, profile.elements * (1 - profile.zeroFraction));
+    this.applies[j] = applies ? 1 : 0;
+    this.bound[j] = profile.bound !== undefined && profile.bound > 0 ? profile.bound : Infinity;
   }
 }
 // each set of gradient profiles' level table (an answer's profiles serve several formats and the dynamic simulation)
@@ -291,12 +313,14 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // (overflowRiskRoughLower): a few of them settle a union bound far over the budget.
   overflowRiskRough(k: number): number {
     const t = this.limits.overflowLevel * 2 ** -k;
-    const a = this.roughOf(this.start, t, 0);
+    // (log2 t once for both profiles: the same double roughOf took twice)
+    const tLog2 = Math.log2(t);
+    const a = this.roughOf(0, t, tLog2);
     const low = roughLowOf;
     const memo = this.memo;
     const m = this.m;
     if (a < 1 && !this.same) {
-      const b = this.roughOf(this.end, t, 3);
+      const b = this.roughOf(1, t, tLog2);
       // the worse of two values is at least either's lower bound
       memo[m + ROUGH_LOW] = Math.max(low, roughLowOf);
       memo[m + ROUGH_K] = k;
@@ -313,14 +337,18 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     return this.memo[this.m + ROUGH_LOW]!;
   }
 
-  private roughOf(profile: MagnitudeProfile, t: number, at: number): number {
-    if (!enclosureApplies(profile, t)) {
+  // side 0 the start profile, 1 the end; enclosureApplies(profile, t) and its x = log2 t − log2 rms from the level
+  // table's numbers of the profile (the same tests and the same doubles)
+  private roughOf(side: number, t: number, tLog2: number): number {
+    const base = this.levelsAt() + 3 * side;
+    const table = this.levels;
+    const j = 2 * this.index + side;
+    if (table.applies[j] === 0 || !(t > 0) || t > table.bound[j]!) {
       roughLowOf = 0;
       return 1;
     }
-    const base = this.levelsAt() + at;
-    const levels = this.levels.levels;
-    shiftBoundsTabled(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
+    const levels = table.levels;
+    shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
     roughLowOf = PAIR[0]!;
     return PAIR[1]!;
   }
