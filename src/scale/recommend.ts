@@ -286,7 +286,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const memo = this.memo;
     const m = this.m;
     if (k === memo[m + OVERFLOW_K]) return;
-    const t = this.limits.overflowLevel * 2 ** -k;
+    const t = this.limits.overflowLevel * pow2Below(k);
     const base = this.levelsAt();
     const levels = this.levels.levels;
     boundsOf(this.start, t, PAIR, levels, base);
@@ -312,7 +312,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // of its cost, for the edge setter's scan and the union bound's first narrowing. Their lower end comes with it
   // (overflowRiskRoughLower): a few of them settle a union bound far over the budget.
   overflowRiskRough(k: number): number {
-    const t = this.limits.overflowLevel * 2 ** -k;
+    const t = this.limits.overflowLevel * pow2Below(k);
     // (log2 t once for both profiles: the same double roughOf took twice)
     const tLog2 = Math.log2(t);
     const a = this.roughOf(0, t, tLog2);
@@ -357,7 +357,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const memo = this.memo;
     const m = this.m;
     if (k === memo[m + FLUSH_K]) return;
-    const t = this.limits.flushBound * 2 ** -k;
+    const t = this.limits.flushBound * pow2Below(k);
     memo[m + FLUSH_START] = energyBelowUpper(this.start, t);
     memo[m + FLUSH_END] = this.same ? memo[m + FLUSH_START]! : energyBelowUpper(this.end, t);
     memo[m + FLUSH_K] = k;
@@ -367,7 +367,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // other's value (the larger of two values is the one the other cannot reach); the first value is kept, not
   // integrated again (max is symmetric, so the order of the two does not matter).
   overflowRisk(k: number): number {
-    const level = this.limits.overflowLevel * 2 ** -k;
+    const level = this.limits.overflowLevel * pow2Below(k);
     if (this.same) return probabilityAnyAbove(this.start, level);
     this.overflowUppers(k);
     const start = this.memo[this.m + OVERFLOW_START]!;
@@ -379,7 +379,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   }
 
   flushedEnergy(k: number): number {
-    const bound = this.limits.flushBound * 2 ** -k;
+    const bound = this.limits.flushBound * pow2Below(k);
     if (this.same) return energyBelow(this.start, bound);
     this.flushUppers(k);
     const start = this.memo[this.m + FLUSH_START]!;
@@ -420,6 +420,20 @@ function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
 }
 
 const PAIR = new Float64Array(2);
+
+// 2^−k for the whole exponents |k| ≤ POW2_REACH, each the double `2 ** -k` gives, made on first use: the curves are asked
+// at a few exponents thousands of times per answer, and a power with a variable exponent costs ~40 ns (Math.pow)
+const POW2_REACH = 300;
+let pow2Table: Float64Array | undefined;
+function pow2Below(k: number): number {
+  const j = k + POW2_REACH;
+  if ((j | 0) !== j || j < 0 || j > 2 * POW2_REACH) return 2 ** -k;
+  if (pow2Table === undefined) {
+    pow2Table = new Float64Array(2 * POW2_REACH + 1);
+    for (let m = 0; m <= 2 * POW2_REACH; m++) pow2Table[m] = 2 ** -(m - POW2_REACH);
+  }
+  return pow2Table[j]!;
+}
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing
