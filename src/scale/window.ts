@@ -219,6 +219,7 @@ const LINEAR_BELOW = 8;
 const POWERS = 128;
 // the union bound's first test takes this many tensors' lower bounds (overByFew)
 const FEW = 256;
+const FEW_FIRST = 32;
 
 // What a search knows of one curve: its tables by exponent (for the flush curve: k + flushShift), ascending by it, the
 // first 32 made and per tensor a bit for each that knows something of it (`known` visits those alone: a tensor is
@@ -579,15 +580,24 @@ class WindowSearch {
       const i = order[r] as number;
       if (active[i] === 0 || k <= (zeroTo[i] as number)) continue;
       taken++;
-      let flags = table.flags[i] as number;
-      if ((flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0) {
-        this.takeRough(k, i, table);
-        flags = table.flags[i] as number;
+      const flags = table.flags[i] as number;
+      let a = 0;
+      if ((flags & HAS_VALUE) !== 0) a = table.data[4 * i + 3] as number;
+      else if ((flags & HAS_BOUNDS) !== 0) {
+        if ((flags & (HAS_UPPER | HAS_ROUGH)) === 0) this.takeRough(k, i, table);
+        a = table.data[4 * i] as number;
+      } else {
+        // the rough lower end alone, not kept: kept, the rough bounds would stand as the tensor's bounds here and keep
+        // out the cheap ones, which are far tighter for some laws (the narrowing below takes both in its order)
+        const t = this.tensors[i] as ScaledTensorCurves;
+        if (t.overflowRiskRough !== undefined) a = t.overflowRiskRoughLower?.(k) ?? 0;
       }
-      const a = (flags & HAS_VALUE) !== 0 ? (table.data[4 * i + 3] as number) : (flags & HAS_BOUNDS) !== 0 ? (table.data[4 * i] as number) : 0;
       // a probability is at least 0; the lower bounds' sum is over the budget as riskWithinByBounds tests it
       if (a > 0) low += a;
       if (Math.min(1, low * (1 - 1e-12)) > budget) return true;
+      // too little from the first few to reach the budget at their rate (near or below the edge, or a law whose rough
+      // bounds are loose): the narrowing is left to decide, without the rest of them
+      if (taken === FEW_FIRST && !(low * (FEW / FEW_FIRST) > budget)) return false;
     }
     return false;
   }
