@@ -251,10 +251,11 @@ class WindowSearch {
   private readonly flushShift: number;
   // per tensor its flushedEnergyGrowth (0: none)
   private readonly growth: Float64Array;
-  // powerBase^d for d < POWERS, the first growth offered (in practice every tensor's): the bound by the growth is read
-  // here instead of raising it anew (Math.pow, ~50 ns) for each tensor and table; the same doubles, computed once
+  // powerBase^d for d < POWERS (NaN until asked), the first growth offered (in practice every tensor's): the bound by the
+  // growth is read here instead of raising it anew (Math.pow, ~50 ns) for each tensor and table; the same doubles, each
+  // computed once
   private powerBase = 0;
-  private readonly powers = new Float64Array(POWERS);
+  private readonly powers = new Float64Array(POWERS).fill(NaN);
   // the tensors most likely to overflow first (lowest own overflow edge), and those most likely to flush (highest own
   // flush edge): the searches decide sooner when the tensors that decide are integrated first
   private readonly overflowOrder: number[];
@@ -304,7 +305,6 @@ class WindowSearch {
         if (this.powerBase === 0) this.powerBase = g;
       }
     }
-    for (let d = 0; d < POWERS; d++) this.powers[d] = this.powerBase ** d;
     this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
     this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
     this.overflowRank = new Int32Array(this.n);
@@ -317,6 +317,12 @@ class WindowSearch {
     this.worstHighs = new Float64Array(this.n);
     this.visited = new Uint8Array(this.n);
     this.zeroTo = new Float64Array(this.n).fill(-Infinity);
+  }
+
+  private power(d: number): number {
+    let p = this.powers[d] as number;
+    if (p !== p) this.powers[d] = p = this.powerBase ** d;
+    return p;
   }
 
   get flushTolerance(): number {
@@ -524,7 +530,7 @@ class WindowSearch {
         // a flushed share known a few binades up bounds it here by the curve's growth
         if (growth > 0 && b < Infinity) {
           const d = t.k - k;
-          const grown = b * (growth === this.powerBase && d < POWERS && (d | 0) === d ? (this.powers[d] as number) : growth ** d) * (1 + ACROSS) + FLUSH_GROWTH_ABSOLUTE;
+          const grown = b * (growth === this.powerBase && d < POWERS && (d | 0) === d ? this.power(d) : growth ** d) * (1 + ACROSS) + FLUSH_GROWTH_ABSOLUTE;
           if (grown < hi) hi = grown;
         }
       } else {
@@ -586,11 +592,11 @@ class WindowSearch {
       else if ((flags & HAS_BOUNDS) !== 0) {
         if ((flags & (HAS_UPPER | HAS_ROUGH)) === 0) this.takeRough(k, i, table);
         a = table.data[4 * i] as number;
-      } else {
-        // the rough lower end alone, not kept: kept, the rough bounds would stand as the tensor's bounds here and keep
-        // out the cheap ones, which are far tighter for some laws (the narrowing below takes both in its order)
-        const t = this.tensors[i] as ScaledTensorCurves;
-        if (t.overflowRiskRough !== undefined) a = t.overflowRiskRoughLower?.(k) ?? 0;
+      } else if ((flags & (HAS_UPPER | HAS_ROUGH)) === 0) {
+        // the rougher bounds first (roughFirst: kept where their upper end says something, else left to the cheap
+        // bounds); their lower end, written into the table either way (0 for a curve without them), counts here
+        this.roughFirst(k, i, table);
+        a = table.data[4 * i] as number;
       }
       // a probability is at least 0; the lower bounds' sum is over the budget as riskWithinByBounds tests it
       if (a > 0) low += a;
