@@ -58,7 +58,25 @@ interface LedgerSource {
 interface PhaseResult {
   tensors: PredictedTensor[];
   hazards: HazardSite[];
+  /** the last weight profiles made, which the end pass reuses where its weights are the start's */
+  weights: WeightProfiles;
 }
+
+/**
+ * The last profile made for the weight at each place in its layer (main weight, bias, ...), with the numbers it was made
+ * from. A stack of like layers has like weights (one variance and size per place: 500 dense layers, 2 profiles where
+ * each made 1,000 per pass), and the end pass's weights are the start's where they do not grow; a profile is a function
+ * of these numbers alone (profileFrom), so reusing it reports the same numbers. Nothing writes a weight's profile.
+ */
+interface WeightProfileSlot {
+  q: number;
+  zero: boolean;
+  shape: "constant" | "uniform" | "gaussian";
+  elements: number;
+  profile: MagnitudeProfile;
+}
+type WeightProfiles = (WeightProfileSlot | undefined)[];
+const WEIGHT_PROFILE_SLOTS = 4;
 
 const SLOT: Record<TensorRole, PlanSlot> = {
   activation: "activations",
@@ -140,6 +158,8 @@ class Phase {
 
   /** whether the start pass links its ledger nodes: only when a ledger is read ({@link LedgerSource}) */
   readonly ledger: boolean;
+  /** see {@link WeightProfiles}: the start pass's, carried on into the end pass */
+  readonly weightProfiles: WeightProfiles;
 
   constructor(
     readonly graph: Graph,
@@ -150,8 +170,10 @@ class Phase {
     startTensors?: PredictedTensor[],
     readonly source: LedgerSource | null = null,
     startHazards?: HazardSite[],
+    weightProfiles?: WeightProfiles,
   ) {
     this.tensors = startTensors ?? [];
+    this.weightProfiles = weightProfiles ?? [];
     this.hazards = startHazards ?? [];
     // a pass with a source leaves the ledger to it; a pass without one (the source's own) links the nodes
     this.ledger = build && source === null;
@@ -305,10 +327,10 @@ class Phase {
 
   weightRecords(layer: GraphLayer, prefix: string): void {
     const weights = layer.weights;
-    for (let i = 0; i < weights.length; i++) this.weightRecord(layer, prefix, weights[i] as GraphWeight);
+    for (let i = 0; i < weights.length; i++) this.weightRecord(layer, prefix, weights[i] as GraphWeight, i);
   }
 
-  private weightRecord(layer: GraphLayer, prefix: string, w: GraphWeight): void {
+  private weightRecord(layer: GraphLayer, prefix: string, w: GraphWeight, place: number): void {
     const variance = this.ctx.variance(w);
     const constant = w.distribution === "constant";
     let q = variance;
@@ -319,7 +341,15 @@ class Phase {
       q = value * value;
       zero = value === 0;
     }
-    const profile = plainProfile(q, zero ? 1 : 0, constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian", 0, w.elements);
+    const shape = constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian";
+    const elements = w.elements;
+    const slot = place < WEIGHT_PROFILE_SLOTS ? this.weightProfiles[place] : undefined;
+    let profile: MagnitudeProfile;
+    if (slot !== undefined && slot.q === q && slot.zero === zero && slot.shape === shape && slot.elements === elements) profile = slot.profile;
+    else {
+      profile = plainProfile(q, zero ? 1 : 0, shape, 0, elements);
+      if (place < WEIGHT_PROFILE_SLOTS) this.weightProfiles[place] = { q, zero, shape, elements, profile };
+    }
     let node: LedgerNode | null = null;
     let id = "";
     if (this.build) {
@@ -716,7 +746,7 @@ function runPhase(
   start?: PhaseResult,
   source: LedgerSource | null = null,
 ): PhaseResult {
-  const p = new Phase(graph, spec, phase, build, lossScale, start?.tensors, source, start?.hazards);
+  const p = new Phase(graph, spec, phase, build, lossScale, start?.tensors, source, start?.hazards, start?.weights);
   const ledger = p.ledger;
   const input = spec.input;
   let signal: Signal;
@@ -817,7 +847,7 @@ function runPhase(
   }
   p.backward(graph.layers, seed.gradient, seedNode, true, true);
   p.finish();
-  return { tensors: p.tensors, hazards: p.hazards };
+  return { tensors: p.tensors, hazards: p.hazards, weights: p.weightProfiles };
 }
 
 function assumptions(spec: NetworkSpec, graph: Graph): string[] {
