@@ -58,15 +58,17 @@ interface LedgerSource {
 interface PhaseResult {
   tensors: PredictedTensor[];
   hazards: HazardSite[];
-  /** the last weight profiles made, which the end pass reuses where its weights are the start's */
-  weights: WeightProfiles;
+  /** the last weight profiles made, which the end pass reuses where its weights are the start's (check's prediction only) */
+  weights: WeightProfiles | undefined;
 }
 
 /**
  * The last profile made for the weight at each place in its layer (main weight, bias, ...), with the numbers it was made
  * from. A stack of like layers has like weights (one variance and size per place: 500 dense layers, 2 profiles where
  * each made 1,000 per pass), and the end pass's weights are the start's where they do not grow; a profile is a function
- * of these numbers alone (profileFrom), so reusing it reports the same numbers. Nothing writes a weight's profile.
+ * of these numbers alone (profileFrom), so reusing it reports the same numbers. Only for check's own prediction
+ * ({@link predictForCheck}), which nothing edits: {@link predict} gives every tensor its own profiles, so a caller that
+ * edits one in place before judging it moves that tensor only.
  */
 interface WeightProfileSlot {
   q: number;
@@ -158,8 +160,8 @@ class Phase {
 
   /** whether the start pass links its ledger nodes: only when a ledger is read ({@link LedgerSource}) */
   readonly ledger: boolean;
-  /** see {@link WeightProfiles}: the start pass's, carried on into the end pass */
-  readonly weightProfiles: WeightProfiles;
+  /** see {@link WeightProfiles}: the start pass's, carried on into the end pass; none where every tensor keeps its own */
+  readonly weightProfiles: WeightProfiles | undefined;
 
   constructor(
     readonly graph: Graph,
@@ -173,7 +175,7 @@ class Phase {
     weightProfiles?: WeightProfiles,
   ) {
     this.tensors = startTensors ?? [];
-    this.weightProfiles = weightProfiles ?? [];
+    this.weightProfiles = weightProfiles ?? (source !== null && !source.own ? [] : undefined);
     this.hazards = startHazards ?? [];
     // a pass with a source leaves the ledger to it; a pass without one (the source's own) links the nodes
     this.ledger = build && source === null;
@@ -343,12 +345,13 @@ class Phase {
     }
     const shape = constant ? "constant" : w.distribution === "uniform" ? "uniform" : "gaussian";
     const elements = w.elements;
-    const slot = place < WEIGHT_PROFILE_SLOTS ? this.weightProfiles[place] : undefined;
+    const made = this.weightProfiles;
+    const slot = made !== undefined && place < WEIGHT_PROFILE_SLOTS ? made[place] : undefined;
     let profile: MagnitudeProfile;
     if (slot !== undefined && slot.q === q && slot.zero === zero && slot.shape === shape && slot.elements === elements) profile = slot.profile;
     else {
       profile = plainProfile(q, zero ? 1 : 0, shape, 0, elements);
-      if (place < WEIGHT_PROFILE_SLOTS) this.weightProfiles[place] = { q, zero, shape, elements, profile };
+      if (made !== undefined && place < WEIGHT_PROFILE_SLOTS) made[place] = { q, zero, shape, elements, profile };
     }
     let node: LedgerNode | null = null;
     let id = "";

@@ -7,6 +7,7 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { buildGraph } from "../../src/graph/index.js";
 import { predict } from "../../src/magnitude/index.js";
+import { predictForCheck } from "../../src/magnitude/predict.js";
 import { analyticRules } from "../../src/ops/registry.js";
 import type { Prediction } from "../../src/magnitude/types.js";
 import type { LayerSpec, NetworkSpec } from "../../src/spec/types.js";
@@ -109,6 +110,30 @@ describe("hazard sites at the end of the horizon", () => {
     expect(weights[0]!.start).toEqual(weights[1]!.start);
     weights[0]!.start.rms *= 2;
     expect(weights[1]!.start.rms).toBe(weights[0]!.start.rms / 2);
+  });
+
+  it("in check's own prediction, where like weights share one profile, are the numbers predict gives each tensor", () => {
+    // predictForCheck reuses a weight's profile where the last weight at its place had the same variance and size (and
+    // the start pass's at the end where weights do not grow): every tensor and site must read as predict's own
+    fc.assert(
+      fc.property(
+        fc.array(fc.constantFrom(8, 32), { minLength: 1, maxLength: 5 }),
+        fc.array(fc.boolean(), { minLength: 5, maxLength: 5 }),
+        fc.constantFrom(1, 1.5),
+        (widths, biases, weightGrowth) => {
+          const layers: LayerSpec[] = [];
+          widths.forEach((width, i) => layers.push(dense(`d${i}`, width, he, biases[i]), act(`a${i}`)));
+          const spec = makeSpec(layers, { input: features(32), training: { horizon: { steps: 1000, weightGrowth } } });
+          const built = buildGraph(spec);
+          if (!built.ok) throw new Error("does not build");
+          const own = predict(built.graph, spec);
+          const kept = predictForCheck(built.graph, spec);
+          expect(JSON.stringify(kept.hazards)).toBe(JSON.stringify(own.hazards));
+          expect(JSON.stringify(kept.tensors)).toBe(JSON.stringify(own.tensors, (key, value: unknown) => (key === "ledger" ? undefined : value)));
+        },
+      ),
+      { numRuns: 30 },
+    );
   });
 
   it("are paired by kind and layer: an end pass that sites otherwise is an internal error, not another site's end", () => {
