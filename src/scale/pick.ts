@@ -208,18 +208,35 @@ export function weighPick(
   let bestFindings = centreFindings;
   const keepsMargin = (k: number) => highest - k >= marginBinades;
   if (findingsTotal(centreFindings) > 0) {
-    // rule 3.: the margin kept, then the distance, then the larger scale (the centre stays among equals)
-    const rank = (k: number) => (keepsMargin(k) ? 0 : 1e6) + Math.abs(k - centre) * 2 + (k < centre ? 1 : 0);
+    // rule 3.: the centre among equals, then the margin kept, then the distance, then the larger scale
+    const rank = (k: number) => (k === centre ? -1 : (keepsMargin(k) ? 0 : 1e6) + Math.abs(k - centre) * 2 + (k < centre ? 1 : 0));
     const candidates: number[] = [];
     for (let k = lowest; k <= highest; k++) if (k !== centre) candidates.push(k);
     candidates.sort((a, b) => rank(a) - rank(b));
+    // where the centre's findings are all of the flush side, the largest scale that keeps the margin is judged first:
+    // a larger scale moves every gradient away from the flush edge, so it is the likeliest to leave the fewest, and a
+    // best found early lets the candidates ranked before it stop at their first finding that makes them worse
+    let probe: number | null = null;
+    if (centreFindings.overflowSide === 0) {
+      for (const k of candidates) if (k > centre && keepsMargin(k) && (probe === null || k > probe)) probe = k;
+    }
+    if (probe !== null) candidates.splice(candidates.indexOf(probe), 1), candidates.unshift(probe);
     for (const k of candidates) {
-      // a count that is already no better than the best stops
-      const found = judge(k, (so) => !fewerFindings(so, bestFindings));
-      if (!fewerFindings(found, bestFindings)) continue;
-      best = k;
-      bestFindings = found;
-      if (findingsTotal(found) === 0) break;
+      // the pick is the fewest findings, then the least rank: the same whatever order the candidates are judged in
+      if (findingsTotal(bestFindings) === 0 && rank(k) > rank(best)) continue;
+      if (rank(k) < rank(best)) {
+        // ranked before the best, it wins with as few findings: a count already worse than the best stops
+        const found = judge(k, (so) => fewerFindings(bestFindings, so));
+        if (fewerFindings(bestFindings, found)) continue;
+        best = k;
+        bestFindings = found;
+      } else {
+        // a count that is already no better than the best stops
+        const found = judge(k, (so) => !fewerFindings(so, bestFindings));
+        if (!fewerFindings(found, bestFindings)) continue;
+        best = k;
+        bestFindings = found;
+      }
     }
   }
   if (!window.unscaledFits) return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings } };
