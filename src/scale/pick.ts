@@ -143,7 +143,9 @@ export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
  *      running unscaled needs no scaling at all: common practice).
  * When 1 lies in the window it is judged too (`unscaled`), so the answer can say what running without a scale leaves.
  * An exponent's judgement stops once its findings so far cannot beat the best (the tensors that had findings at an
- * exponent judged before go first), which gives the same pick as judging every exponent whole.
+ * exponent judged before go first), which gives the same pick as judging every exponent whole; where the centre's
+ * findings are all of the flush side, the largest scale that keeps the margin is judged first, so that a best found
+ * early stops the others sooner (the order judged does not move the pick).
  * Returns null when the window is empty, or the centre leaves no such finding and 1 is the centre or lies outside
  * the window (the centre stands unweighed).
  */
