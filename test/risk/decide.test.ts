@@ -83,6 +83,25 @@ const thresholds = fc.oneof(
     ),
 );
 
+/**
+ * Thresholds that sit near the tensor's own numbers, so that every bound meets its threshold where the decision is
+ * close: each at-risk threshold within 1.5 decades (binades for the headroom) of the worse end's number, moved by `off`,
+ * the failing ones the defaults (overflow 0.5). The numbers themselves do not depend on the at-risk thresholds.
+ */
+function thresholdsNear(tensor: TensorPrediction, limits: RangeLimits, base: TensorRiskOptions, off: readonly number[]): RiskThresholds {
+  const worst = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst;
+  const near = (value: number, k: number, otherwise: number): number => (value > 0 && value < 1 ? value * 10 ** (off[k] as number) : otherwise);
+  return {
+    ...DEFAULT_THRESHOLDS,
+    overflowAtRisk: near(worst.overflowRisk, 0, DEFAULT_THRESHOLDS.overflowAtRisk),
+    overflowFails: 0.5,
+    flushedAtRisk: near(worst.flushedFraction, 1, DEFAULT_THRESHOLDS.flushedAtRisk),
+    energyAtRisk: near(worst.flushedEnergy, 2, DEFAULT_THRESHOLDS.energyAtRisk),
+    subnormalNoiseAtRisk: near(worst.subnormalNoise, 3, DEFAULT_THRESHOLDS.subnormalNoiseAtRisk),
+    headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
+  };
+}
+
 describe("findings decided by bounds", () => {
   it("are the findings tensorFormatRisk gives from the numbers, wherever the bounds decide them", () => {
     let decided = 0;
@@ -118,20 +137,8 @@ describe("findings decided by bounds", () => {
         fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
         fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
         (tensor, limits, off) => {
-          // the numbers do not depend on the at-risk thresholds: each is set within 1.5 decades (binades for the
-          // headroom) of the worse end's number, so every bound meets its threshold where the decision is close
           const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
-          const worst = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst;
-          const near = (value: number, k: number, otherwise: number): number => (value > 0 && value < 1 ? value * 10 ** (off[k] as number) : otherwise);
-          const t: RiskThresholds = {
-            ...DEFAULT_THRESHOLDS,
-            overflowAtRisk: near(worst.overflowRisk, 0, DEFAULT_THRESHOLDS.overflowAtRisk),
-            overflowFails: 0.5,
-            flushedAtRisk: near(worst.flushedFraction, 1, DEFAULT_THRESHOLDS.flushedAtRisk),
-            energyAtRisk: near(worst.flushedEnergy, 2, DEFAULT_THRESHOLDS.energyAtRisk),
-            subnormalNoiseAtRisk: near(worst.subnormalNoise, 3, DEFAULT_THRESHOLDS.subnormalNoiseAtRisk),
-            headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
-          };
+          const t = thresholdsNear(tensor, limits, base, off);
           const options: TensorRiskOptions = { ...base, thresholds: t };
           const found = decidedFindings(tensor, tensor.start, tensor.end, tensor.start === tensor.end, new FormatDecision(limits, t));
           if (found === null) return;
@@ -234,20 +241,8 @@ describe("findings that are only counted", () => {
         fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
         fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
         (tensor, limits, off) => {
-          // as for the decided findings: each at-risk threshold within 1.5 decades (binades for the headroom) of the
-          // worse end's number, the failing ones the defaults
           const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS, countOnly: true };
-          const worst = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst;
-          const near = (value: number, k: number, otherwise: number): number => (value > 0 && value < 1 ? value * 10 ** (off[k] as number) : otherwise);
-          const t: RiskThresholds = {
-            ...DEFAULT_THRESHOLDS,
-            overflowAtRisk: near(worst.overflowRisk, 0, DEFAULT_THRESHOLDS.overflowAtRisk),
-            overflowFails: 0.5,
-            flushedAtRisk: near(worst.flushedFraction, 1, DEFAULT_THRESHOLDS.flushedAtRisk),
-            energyAtRisk: near(worst.flushedEnergy, 2, DEFAULT_THRESHOLDS.energyAtRisk),
-            subnormalNoiseAtRisk: near(worst.subnormalNoise, 3, DEFAULT_THRESHOLDS.subnormalNoiseAtRisk),
-            headroomAtRisk: worst.headroom === null ? 1 : Math.max(0, worst.headroom + (off[4] as number)),
-          };
+          const t = thresholdsNear(tensor, limits, base, off);
           const options: TensorRiskOptions = { ...base, thresholds: t };
           expect(counted(tensor, limits, t)).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), options).findings.map(countedPart));
         },
