@@ -83,6 +83,10 @@ const thresholds = fc.oneof(
     ),
 );
 
+// the formats and the five offsets (decades, binades for the headroom) of the thresholds-near property tests
+const NEAR_FORMATS = fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING);
+const NEAR_OFFSETS = fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 });
+
 /**
  * Thresholds that sit near the tensor's own numbers, so that every bound meets its threshold where the decision is
  * close: each at-risk threshold within 1.5 decades (binades for the headroom) of the worse end's number, moved by `off`,
@@ -134,8 +138,8 @@ describe("findings decided by bounds", () => {
     fc.assert(
       fc.property(
         tensors,
-        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
-        fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
+        NEAR_FORMATS,
+        NEAR_OFFSETS,
         (tensor, limits, off) => {
           const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
           const t = thresholdsNear(tensor, limits, base, off);
@@ -238,8 +242,8 @@ describe("findings that are only counted", () => {
     fc.assert(
       fc.property(
         tensors,
-        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2, E4M3_SATURATING),
-        fc.array(fc.double({ min: -1.5, max: 1.5, noNaN: true }), { minLength: 5, maxLength: 5 }),
+        NEAR_FORMATS,
+        NEAR_OFFSETS,
         (tensor, limits, off) => {
           const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS, countOnly: true };
           const t = thresholdsNear(tensor, limits, base, off);
