@@ -201,10 +201,14 @@ function taylorValue(x: number, s: number, m: LevelMoments): number {
 
 /** Whether {@link anyAboveEnclosure} bounds this profile's any-above probability at t (a Gaussian law, enough elements). */
 export function enclosureApplies(profile: MagnitudeProfile, t: number): boolean {
-  if (!(profile.rms > 0) || !(profile.log2Spread > 0) || !(t > 0)) return false;
+  if (!(t > 0) || !enclosureHolds(profile)) return false;
   // a bound decides the law past it (the probability is 0 there): the integrals' own bounds say so
-  if (profile.bound !== undefined && profile.bound > 0 && t > profile.bound) return false;
-  return enclosedLaw(profile.shape, profile.elements * (1 - profile.zeroFraction));
+  return !(profile.bound !== undefined && profile.bound > 0 && t > profile.bound);
+}
+
+/** {@link enclosureApplies}' tests that do not read t: a positive rms and spread, and an enclosed law ({@link enclosedLaw}). */
+export function enclosureHolds(profile: MagnitudeProfile): boolean {
+  return profile.rms > 0 && profile.log2Spread > 0 && enclosedLaw(profile.shape, profile.elements * (1 - profile.zeroFraction));
 }
 
 /**

@@ -222,7 +222,10 @@ export function weighPick(
     if (centreFindings.overflowSide === 0) {
       for (const k of candidates) if (k > centre && keepsMargin(k) && (probe === null || k > probe)) probe = k;
     }
-    if (probe !== null) candidates.splice(candidates.indexOf(probe), 1), candidates.unshift(probe);
+    if (probe !== null) {
+      candidates.splice(candidates.indexOf(probe), 1);
+      candidates.unshift(probe);
+    }
     for (const k of candidates) {
       // the pick is the fewest findings, then the least rank: the same whatever order the candidates are judged in
       if (findingsTotal(bestFindings) === 0 && rank(k) > rank(best)) continue;

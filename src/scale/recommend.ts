@@ -2,7 +2,7 @@
  * The loss-scale answer for one plan: the static window in the gradient format, the pick, which tensors set
  * each edge, and — when no static scale exists — remedies ranked by their computed effect.
  */
-import { getFormat } from "../formats/index.js";
+import { getFormat, pow2 } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -192,7 +192,7 @@ class ShiftLevelTable {
   readonly levels: Float64Array;
   private readonly made: Uint8Array;
   // per profile (2i start, 2i + 1 end), made with its levels: log2 of its rms, its spread, 1 where the shifted tails
-  // apply at some t (enclosureApplies without t: a positive rms and spread, a Gaussian law of 16 elements or more), and
+  // apply at some t (enclosureHolds: a positive rms and spread, a Gaussian law of 16 elements or more), and
   // its bound (+∞ without one): the rough bounds read these instead of the profile's fields
   readonly rmsLog2: Float64Array;
   readonly spread: Float64Array;
@@ -223,9 +223,7 @@ class ShiftLevelTable {
   private numbers(j: number, profile: MagnitudeProfile): void {
     this.rmsLog2[j] = Math.log2(profile.rms);
     this.spread[j] = profile.log2Spread;
-    // enclosureApplies' tests that do not take t, in its order (src/scale/overflow-enclosure.ts)
-    const applies = profile.rms > 0 && profile.log2Spread > 0 && enclosedLaw(profile.shape, profile.elements * (1 - profile.zeroFraction));
-    this.applies[j] = applies ? 1 : 0;
+    this.applies[j] = enclosureHolds(profile) ? 1 : 0;
     this.bound[j] = profile.bound !== undefined && profile.bound > 0 ? profile.bound : Infinity;
   }
 }
@@ -421,18 +419,10 @@ function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
 
 const PAIR = new Float64Array(2);
 
-// 2^−k for the whole exponents |k| ≤ POW2_REACH, each the double `2 ** -k` gives, made on first use: the curves are asked
-// at a few exponents thousands of times per answer, and a power with a variable exponent costs ~40 ns (Math.pow)
-const POW2_REACH = 300;
-let pow2Table: Float64Array | undefined;
+// 2^−k: exact from the formats' table of powers for a whole exponent (the curves are asked at a few exponents thousands
+// of times per answer, and a power with a variable exponent costs ~40 ns, Math.pow), the same double 2 ** -k gives
 function pow2Below(k: number): number {
-  const j = k + POW2_REACH;
-  if ((j | 0) !== j || j < 0 || j > 2 * POW2_REACH) return 2 ** -k;
-  if (pow2Table === undefined) {
-    pow2Table = new Float64Array(2 * POW2_REACH + 1);
-    for (let m = 0; m <= 2 * POW2_REACH; m++) pow2Table[m] = 2 ** -(m - POW2_REACH);
-  }
-  return pow2Table[j]!;
+  return Number.isInteger(k) ? pow2(-k) : 2 ** -k;
 }
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);

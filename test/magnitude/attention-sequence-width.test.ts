@@ -11,33 +11,17 @@
  * median of 9 seeded draws, unrounded. The figures in the test's name are before → after these rules.
  */
 import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
+import { encoderTagger } from "../helpers/invented-specs.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // an invented tagger of trail-survey notes: four pre-norm encoder blocks, 32 words, 40 tags per word
-const SURVEY = `name: trail-survey-tagger
-description: invented; a four-block pre-norm encoder tagging the words of invented trail-survey notes
-input: { tokens: 32 }
-training:
-  batch: 8
-  loss: { kind: cross-entropy, classes: 40, reduction: mean }
-${WIDE_PLAN}blocks:
-  enc:
-    - type: residual
-      name: attention-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: attention, heads: 2, head-width: 32, causal: false, scaling: query, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.014 } }
-    - type: residual
-      name: feed-forward-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: gated-feed-forward, hidden: 172, activation: silu, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.02 } }
-layers:
-  - { type: embedding, name: table, vocabulary: 2000, width: 64, init: { kind: normal, std: 0.014 } }
-  - { type: repeat, name: encoder, times: 4, layers: [ { type: use, block: enc } ] }
-  - { type: rms-norm, name: final-norm }
-  - { type: dense, name: tagger, width: 40, bias: false, init: { kind: normal, std: 0.06 } }
-`;
+const SURVEY = encoderTagger({
+  name: "trail-survey-tagger",
+  description: "invented; a four-block pre-norm encoder tagging the words of invented trail-survey notes",
+  blocks: 4,
+  tableStd: 0.014,
+  attentionOutputStd: 0.014,
+});
 
 /** the blocks' query, query-weight and key-weight gradients outside `tolerance` binade of the simulation */
 function outside(yaml: string, name: string, tolerance: number): string[] {

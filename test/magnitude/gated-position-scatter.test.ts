@@ -13,33 +13,17 @@
  * name are before → after the rule.
  */
 import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
+import { encoderTagger } from "../helpers/invented-specs.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // an invented tagger of the words of orchard-log entries: four pre-norm encoder blocks, 32 words, 40 tags per word
-const ORCHARD = `name: orchard-log-tagger
-description: invented; a four-block pre-norm encoder tagging the words of invented orchard-log entries
-input: { tokens: 32 }
-training:
-  batch: 8
-  loss: { kind: cross-entropy, classes: 40, reduction: mean }
-${WIDE_PLAN}blocks:
-  enc:
-    - type: residual
-      name: attention-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: attention, heads: 2, head-width: 32, causal: false, scaling: query, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.02 } }
-    - type: residual
-      name: feed-forward-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: gated-feed-forward, hidden: 172, activation: silu, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.02 } }
-layers:
-  - { type: embedding, name: table, vocabulary: 2000, width: 64, init: { kind: normal, std: 0.01 } }
-  - { type: repeat, name: encoder, times: 4, layers: [ { type: use, block: enc } ] }
-  - { type: rms-norm, name: final-norm }
-  - { type: dense, name: tagger, width: 40, bias: false, init: { kind: normal, std: 0.06 } }
-`;
+const ORCHARD = encoderTagger({
+  name: "orchard-log-tagger",
+  description: "invented; a four-block pre-norm encoder tagging the words of invented orchard-log entries",
+  blocks: 4,
+  tableStd: 0.01,
+  attentionOutputStd: 0.02,
+});
 
 describe("gated feed-forward: two positions' realised input cosine scatters by (1 − c²)²/D, not 1/D", () => {
   it("blocks 2–3: query activation gradient and query and key weight gradients within their tolerances (block 3 before +0.56, +0.62, +0.63; after +0.49, +0.55, +0.56)", () => {

@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
+import { encoderTagger } from "../helpers/invented-specs.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // The cross-entropy gradient of two positions of one sequence, p_t − y_t and p_s − y_s with labels drawn apart, share
 // E[p_t·p_s] − 1/C² per class (derived: the same pair moment as two samples', at the logits' position correlation).
@@ -13,30 +14,13 @@ import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
 // gradients, low by a further 0.3 binade from the attention's own rule, are left out.
 
 // an invented tagger of field notes: two pre-norm encoder blocks, 32 words, 40 tags per word
-const NOTES = `name: field-note-tagger
-description: invented; a two-block pre-norm encoder tagging the words of invented field notes
-input: { tokens: 32 }
-training:
-  batch: 8
-  loss: { kind: cross-entropy, classes: 40, reduction: mean }
-${WIDE_PLAN}blocks:
-  enc:
-    - type: residual
-      name: attention-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: attention, heads: 2, head-width: 32, causal: false, scaling: query, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.02 } }
-    - type: residual
-      name: feed-forward-part
-      branch:
-        - { type: rms-norm, epsilon: 1.0e-6 }
-        - { type: gated-feed-forward, hidden: 172, activation: silu, init: { kind: normal, std: 0.06 }, output-init: { kind: normal, std: 0.02 } }
-layers:
-  - { type: embedding, name: table, vocabulary: 2000, width: 64, init: { kind: normal, std: 0.01 } }
-  - { type: repeat, name: encoder, times: 2, layers: [ { type: use, block: enc } ] }
-  - { type: rms-norm, name: final-norm }
-  - { type: dense, name: tagger, width: 40, bias: false, init: { kind: normal, std: 0.06 } }
-`;
+const NOTES = encoderTagger({
+  name: "field-note-tagger",
+  description: "invented; a two-block pre-norm encoder tagging the words of invented field notes",
+  blocks: 2,
+  tableStd: 0.01,
+  attentionOutputStd: 0.02,
+});
 
 describe("the loss gradient's correlation between positions of one sequence", { timeout: 180_000 }, () => {
   const rows = measuredDifferences(NOTES, "field-note-tagger", /gradient/, 15);

@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
+import { reluStackSorter } from "../helpers/invented-specs.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // Under a cross-entropy head the gradient of each sample holds its own forward signal through the loss's curvature M
 // (δ = M·y + what does not depend on the layer), and in a deep ReLU stack the samples' signals grow alike with depth
@@ -19,19 +20,12 @@ import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
 // eight layers, +0.37 at most; now +0.13, +0.07 and +0.27.
 
 // an invented grain sorter: 512 sensor readings, a 12-layer ReLU stack of width 256 under a ten-class head
-const GRAIN = `name: grain-sorter
-description: invented grain sorter, a 12-layer He-initialised ReLU stack under a ten-class head
-input: { features: 512 }
-training: { batch: 128, loss: { kind: cross-entropy, classes: 10 } }
-${WIDE_PLAN}layers:
-  - type: repeat
-    name: s
-    times: 12
-    layers:
-      - { type: dense, width: 256, init: he-normal }
-      - relu
-  - { type: dense, name: head, width: 10, init: glorot-normal }
-`;
+const GRAIN = reluStackSorter({
+  name: "grain-sorter",
+  description: "invented grain sorter, a 12-layer He-initialised ReLU stack under a ten-class head",
+  loss: "{ kind: cross-entropy, classes: 10 }",
+  outputs: 10,
+});
 
 describe("two samples' own parts of the gradient through a deep ReLU stack", () => {
   it("the weight and bias gradients of layers 2 to 9 at the median draw (+0.28 and +0.25 binade above on average before)", () => {

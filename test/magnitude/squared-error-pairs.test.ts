@@ -1,5 +1,6 @@
 import { describe, expect, it } from "vitest";
-import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
+import { reluStackSorter } from "../helpers/invented-specs.js";
+import { measuredDifferences } from "../helpers/simulated.js";
 
 // Under a squared-error loss the gradient is δ = k·(y − t) exactly, so the dense layer right below the head holds each
 // sample's own Wᵀ·k·W·x, and two samples' such parts pair as one sample's does with itself, E[x_a·x_b] in place of
@@ -15,19 +16,12 @@ import { WIDE_PLAN, measuredDifferences } from "../helpers/simulated.js";
 // +0.056 on average; now +0.07, +0.00 and +0.02.
 
 // an invented seed sorter: 512 sensor readings, a 12-layer ReLU stack of width 256 under a 16-output regression head
-const SORTER = `name: seed-sorter
-description: invented seed sorter, a 12-layer He-initialised ReLU stack under a 16-output squared-error head
-input: { features: 512 }
-training: { batch: 128, loss: { kind: mean-squared-error } }
-${WIDE_PLAN}layers:
-  - type: repeat
-    name: s
-    times: 12
-    layers:
-      - { type: dense, width: 256, init: he-normal }
-      - relu
-  - { type: dense, name: head, width: 16, init: glorot-normal }
-`;
+const SORTER = reluStackSorter({
+  name: "seed-sorter",
+  description: "invented seed sorter, a 12-layer He-initialised ReLU stack under a 16-output squared-error head",
+  loss: "{ kind: mean-squared-error }",
+  outputs: 16,
+});
 
 describe("two samples' own parts of the gradient right below a squared-error head", () => {
   it("the weight and bias gradients of the layer below the head (+0.13 and +0.07 binade before) and of layers 2 to 12", () => {
