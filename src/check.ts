@@ -10,12 +10,12 @@ import { didYouMean } from "./spec/issues.js";
 import { FORMATS, type FormatName } from "./formats/index.js";
 import type { Prediction } from "./magnitude/types.js";
 import { applyMeasurements, calibrateGraph, loadMeasurements, weightMismatchProblems, type Measurements, type UnusedStatistic, type WeightCalibration } from "./measure/index.js";
-import { checkedFormats, judgePrediction, planFor, worseVerdict, type AppliedLossScale, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
+import { checkedFormats, judgePrediction, planFor, scaledSubjects, worseVerdict, type AppliedLossScale, type ScaledSubjects, type CheckOptions, type CheckResult, type LossScaleWindowSummary, type Verdict } from "./risk/index.js";
 import { checkOptimizer, type OptimizerCheck, type OptimizerStateHazard } from "./scale/optimizer.js";
 import { notCountedSentence, scaleWords } from "./risk/words.js";
 import { judgePredictionAgain } from "./risk/judge.js";
 import { lossScaleAnswer, withWeighedPick, type LossScaleAnswer } from "./scale/recommend.js";
-import { scaledFindings, weighPick } from "./scale/pick.js";
+import { centreLeavesFindings, scaledFindings, weighPick } from "./scale/pick.js";
 import { loadSpec, positionIssues, type SpecIssue, type SpecPosition } from "./spec/index.js";
 import type { NetworkSpec, PrecisionPlan, SpecPath } from "./spec/types.js";
 
@@ -141,12 +141,22 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // costs nothing until it overflows (Micikevicius et al. 2018 §3.2), and the pick keeps the most margin (a given
   // scale wins over the windows in the judgement)
   const atPicks = (): CheckOptions => (answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
-  let judged = judgePrediction(planned, prediction, atPicks());
-  const weighed = weighedAnswers(planned, prediction, answers, judged, options);
-  answers = weighed.answers;
-  // a pick moved: the gradients are judged again at it (a given scale is judged as it was), what no scale moves kept
-  if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) {
-    judged = judgePredictionAgain(judged, planned, prediction, atPicks());
+  // where every window's centre surely leaves findings, its pick is weighed (and likely moves) before the one judgement
+  // at the picks; else the judgement at the centres gives their findings to the weighing
+  const subjects = answers.some((a) => a.window.pickLog2 !== null) ? scaledSubjects(planned, prediction) : undefined;
+  const first = subjects === undefined ? null : weighedFirst(planned, prediction, answers, subjects, options);
+  let judged: CheckResult;
+  if (first !== null) {
+    answers = first;
+    judged = judgePrediction(planned, prediction, atPicks());
+  } else {
+    judged = judgePrediction(planned, prediction, atPicks());
+    const weighed = weighedAnswers(planned, prediction, answers, judged, options, subjects);
+    answers = weighed.answers;
+    // a pick moved: the gradients are judged again at it (a given scale is judged as it was), what no scale moves kept
+    if (weighed.moved && (judged.lossScale.origin === "recommended" || judged.formats.some((f) => f.lossScale?.origin === "recommended"))) {
+      judged = judgePredictionAgain(judged, planned, prediction, atPicks());
+    }
   }
   judged = withSearchedWindows(judged, plan, answers);
   // the optimizer's state findings that a hazard reports in the plan's state format are told there, not twice
@@ -234,6 +244,7 @@ function weighedAnswers(
   answers: LossScaleAnswer[],
   judged: CheckResult,
   options: CheckAnswerOptions,
+  made: ScaledSubjects | undefined,
 ): { answers: LossScaleAnswer[]; moved: boolean } {
   let moved = false;
   const out = answers.map((answer) => {
@@ -247,12 +258,37 @@ function weighedAnswers(
     const subjects = { tensors: new Set<string>(), sites: new Set<string>() };
     const atCentre =
       formatCheck !== undefined && applied.value === 2 ** pick ? { findings: scaledFindings(judged, answer.format, subjects), ...subjects } : undefined;
-    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, atCentre);
+    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, atCentre, made);
     if (found === null) return answer;
     if (found.pickLog2 !== pick) moved = true;
     return withWeighedPick(answer, found.pickLog2, found.weighing);
   });
   return { answers: out, moved };
+}
+
+/**
+ * The answers weighed before any judgement, or null to weigh them after it (from its findings at the centres). Taken
+ * when no scale is given (the judgement is then at the picks) and every window's centre surely leaves findings
+ * (src/scale/pick.ts centreLeavesFindings): each is then weighed whatever, its centre counted here, and the pick most
+ * often moves, so one judgement at the picks replaces the judgement at the centres and the gradients judged again at
+ * the picks (the same result: judgePredictionAgain gives judgePrediction's). Where a centre leaves none, the judgement
+ * at it is the one kept, and it gives the weighing the centre's (zero) count.
+ */
+function weighedFirst(
+  spec: NetworkSpec,
+  prediction: Prediction,
+  answers: LossScaleAnswer[],
+  subjects: ScaledSubjects,
+  options: CheckAnswerOptions,
+): LossScaleAnswer[] | null {
+  if (options.lossScale !== undefined || spec.precision.lossScale !== undefined) return null;
+  for (const answer of answers) {
+    if (answer.window.pickLog2 !== null && !centreLeavesFindings(subjects, answer.format, answer.window, options)) return null;
+  }
+  return answers.map((answer) => {
+    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, undefined, subjects);
+    return found === null ? answer : withWeighedPick(answer, found.pickLog2, found.weighing);
+  });
 }
 
 // a library caller passing something other than a loaded spec gets a TypeError naming it, not a property read deep inside

@@ -157,6 +157,7 @@ export function weighPick(
   marginBinades: number,
   options: CheckOptions,
   atCentre?: { findings: ScaledFindings; tensors: ReadonlySet<string>; sites: ReadonlySet<string> },
+  made?: ScaledSubjects,
 ): { pickLog2: number; weighing: PickWeighing } | null {
   if (window.empty || window.pickLog2 === null) return null;
   const centre = window.pickLog2;
@@ -172,18 +173,18 @@ export function weighPick(
     const known = whole.get(log2);
     if (known !== undefined) return known;
     if (subjects === undefined) {
-      const made = scaledSubjects(spec, prediction);
-      const sites = made.sites.length;
-      seen = new Uint8Array(sites + made.tensors.length);
+      const own = made ?? scaledSubjects(spec, prediction);
+      const sites = own.sites.length;
+      seen = new Uint8Array(sites + own.tensors.length);
       const hadFinding = (i: number) =>
-        i < sites ? atCentre?.sites.has((made.sites[i] as ScaledSubjects["sites"][number]).site.layer) === true : atCentre?.tensors.has((made.tensors[i - sites] as TensorPrediction).id) === true;
+        i < sites ? atCentre?.sites.has((own.sites[i] as ScaledSubjects["sites"][number]).site.layer) === true : atCentre?.tensors.has((own.tensors[i - sites] as TensorPrediction).id) === true;
       for (let i = 0; i < seen.length; i++) {
         if (hadFinding(i)) {
           seen[i] = 1;
           first.push(i);
         }
       }
-      subjects = made;
+      subjects = own;
     }
     const order = [...first];
     for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order.push(i);
@@ -253,6 +254,34 @@ export function weighPick(
     bestFindings = unscaled;
   }
   return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings, unscaled } };
+}
+
+/**
+ * Whether the window's centre surely leaves a finding that moves with the scale, told by judging (counting) at the
+ * centre only the tensors that set the window's edges: the gradient nearest a flush or overflow edge is the likeliest
+ * to leave one at the centre, whose thresholds are stricter than the window's tolerance and budget. False says
+ * nothing: the centre may leave findings elsewhere. Where it is true, {@link weighPick} weighs the window whatever the
+ * centre's other findings, so `check` weighs the pick before its judgement and judges once at the pick, not at the
+ * centre and again at a pick that moved (the same result: src/check.ts).
+ */
+export function centreLeavesFindings(subjects: ScaledSubjects, format: FormatName, window: ScaleWindow, options: CheckOptions): boolean {
+  if (window.empty || window.pickLog2 === null) return false;
+  const sites = subjects.sites.length;
+  const order: number[] = [];
+  const edges = [window.lowerEdgeSetBy, window.upperEdgeSetBy];
+  for (let e = 0; e < edges.length; e++) {
+    const id = edges[e];
+    if (id === null || id === undefined) continue;
+    const i = subjects.tensors.findIndex((t) => t.id === id);
+    if (i >= 0 && !order.includes(sites + i)) order.push(sites + i);
+  }
+  let found = false;
+  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, (f) => {
+    if (!movesWithScale(f)) return true;
+    found = true;
+    return false;
+  });
+  return found;
 }
 
 /** Whether running unscaled leaves no more findings than the weighed pick (undefined when 1 was not judged). */
