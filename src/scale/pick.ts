@@ -164,7 +164,8 @@ export function weighPick(
   const lowest = window.lowestLog2!;
   const highest = window.highestLog2!;
   let subjects: ScaledSubjects | undefined;
-  // the subjects (sites, then tensors) that had a finding at some exponent judged go first in every later judgement
+  // the tensors setting the window's edges, then the subjects (sites, then tensors) that had a finding at some exponent
+  // judged, go first in every later judgement
   const first: number[] = [];
   let seen = new Uint8Array(0);
   // the exponents judged whole (no early stop), so 1 is not judged twice when the candidates reached it
@@ -176,10 +177,16 @@ export function weighPick(
       const own = made ?? scaledSubjects(spec, prediction);
       const sites = own.sites.length;
       seen = new Uint8Array(sites + own.tensors.length);
+      // the tensors nearest the window's edges are the likeliest to leave a finding at any of its scales
+      const edges = edgeSubjects(own, window);
+      for (let e = 0; e < edges.length; e++) {
+        seen[edges[e] as number] = 1;
+        first.push(edges[e] as number);
+      }
       const hadFinding = (i: number) =>
         i < sites ? atCentre?.sites.has((own.sites[i] as ScaledSubjects["sites"][number]).site.layer) === true : atCentre?.tensors.has((own.tensors[i - sites] as TensorPrediction).id) === true;
       for (let i = 0; i < seen.length; i++) {
-        if (hadFinding(i)) {
+        if (seen[i] === 0 && hadFinding(i)) {
           seen[i] = 1;
           first.push(i);
         }
@@ -257,15 +264,29 @@ export function weighPick(
 }
 
 /**
- * Whether the window's centre surely leaves a finding that moves with the scale, told by judging (counting) at the
- * centre only the tensors that set the window's edges: the gradient nearest a flush or overflow edge is the likeliest
- * to leave one at the centre, whose thresholds are stricter than the window's tolerance and budget. False says
- * nothing: the centre may leave findings elsewhere. Where it is true, {@link weighPick} weighs the window whatever the
- * centre's other findings, so `check` weighs the pick before its judgement and judges once at the pick, not at the
- * centre and again at a pick that moved (the same result: src/check.ts).
+ * Whether the window's centre surely leaves a finding that moves with the scale, told by counting at the centre only
+ * the likeliest subjects: the tensors that set the window's edges (the gradients nearest a flush or overflow edge; the
+ * check's thresholds are stricter than the window's tolerance and budget) and the scaled loss (the window does not
+ * bound it). False says nothing: the centre may leave findings elsewhere. Where it is true, {@link weighPick} weighs the
+ * window whatever the centre's other findings, so `check` weighs the pick before its judgement and judges once at the
+ * pick, not at the centre and again at a pick that moved (the same result: src/check.ts).
  */
 export function centreLeavesFindings(subjects: ScaledSubjects, format: FormatName, window: ScaleWindow, options: CheckOptions): boolean {
   if (window.empty || window.pickLog2 === null) return false;
+  const order = edgeSubjects(subjects, window);
+  const sites = subjects.sites.length;
+  for (let i = 0; i < sites; i++) if ((subjects.sites[i] as ScaledSubjects["sites"][number]).site.kind === "loss-value") order.push(i);
+  let found = false;
+  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, (f) => {
+    if (!movesWithScale(f)) return true;
+    found = true;
+    return false;
+  });
+  return found;
+}
+
+// the indices (judgeScaled's) of the tensors that set the window's lower edge, then its upper one
+function edgeSubjects(subjects: ScaledSubjects, window: ScaleWindow): number[] {
   const sites = subjects.sites.length;
   const order: number[] = [];
   const edges = [window.lowerEdgeSetBy, window.upperEdgeSetBy];
@@ -275,13 +296,7 @@ export function centreLeavesFindings(subjects: ScaledSubjects, format: FormatNam
     const i = subjects.tensors.findIndex((t) => t.id === id);
     if (i >= 0 && !order.includes(sites + i)) order.push(sites + i);
   }
-  let found = false;
-  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, (f) => {
-    if (!movesWithScale(f)) return true;
-    found = true;
-    return false;
-  });
-  return found;
+  return order;
 }
 
 /** Whether running unscaled leaves no more findings than the weighed pick (undefined when 1 was not judged). */

@@ -7,6 +7,7 @@ import { parseSpec } from "../../src/spec/index.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predictForCheck } from "../../src/magnitude/predict.js";
 import { judgeScaled, scaledSubjects } from "../../src/risk/judge.js";
+import { centreLeavesFindings } from "../../src/scale/pick.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
 // The weighed pick (src/scale/pick.ts) is checked against the check itself: the spec judged at every scale of the
@@ -262,6 +263,32 @@ describe("1 (no scaling) in the window, weighed like the other scales", () => {
     expect(said).not.toContain("need no loss scale");
     expect(said).toContain(`1 (no scaling) lies in the window too, but would leave ${atOne.fails + atOne.atRisk} findings`);
   });
+});
+
+describe("a centre's findings told before the judgement", () => {
+  // check weighs the pick before its judgement where centreLeavesFindings says the window's centre leaves a finding
+  // (counting only the tensors setting the window's edges and the scaled loss): it must never say so of a centre that
+  // leaves none, which the whole check at that scale tells
+  const cases: [string, boolean][] = [
+    ["deep-relu-glorot.yaml", true],
+    ["wide-classifier.yaml", true],
+    ["cnn-batchnorm.yaml", false],
+    ["deep-relu-he.yaml", false],
+  ];
+  for (const [name, told] of cases) {
+    it(`${name}: ${told ? "a finding at the centre, told by its edges' tensors or the scaled loss" : "no finding at the centre, and none told"}`, () => {
+      const spec = load(name);
+      const answer = check(spec).lossScaleAnswer!;
+      const centre = answer.weighing?.centreLog2 ?? answer.window.pickLog2!;
+      const built = buildGraph(spec);
+      if (!built.ok) throw new Error(`${name} does not build`);
+      const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
+      const probed = centreLeavesFindings(subjects, answer.format, { ...answer.window, pickLog2: centre }, {});
+      const whole = counted(check(spec, { lossScale: 2 ** centre }), answer.format);
+      expect(whole.fails + whole.atRisk > 0, "the whole check's count at the centre").toBe(told);
+      expect(probed).toBe(told);
+    });
+  }
 });
 
 describe("the scales the pick weighs are judged for their counts alone", () => {
