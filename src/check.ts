@@ -144,11 +144,15 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   // where every window's centre surely leaves findings, its pick is weighed (and likely moves) before the one judgement
   // at the picks; else the judgement at the centres gives their findings to the weighing
   const subjects = answers.some((a) => a.window.pickLog2 !== null) ? scaledSubjects(planned, prediction) : undefined;
-  const first = subjects === undefined ? null : weighedFirst(planned, prediction, answers, subjects, options);
+  const first = subjects === undefined ? null : weighedFirst(planned, prediction, answers, subjects, formats, options);
   let judged: CheckResult;
   if (first !== null) {
-    answers = first;
-    judged = judgePrediction(planned, prediction, atPicks());
+    answers = first.answers;
+    const at = first.judged;
+    // the judgement the weighing made at a scale that is the pick serves; at another, the gradients are judged again
+    if (at === null) judged = judgePrediction(planned, prediction, atPicks());
+    else if (answers[0]?.window.pickLog2 === at.log2) judged = at.result;
+    else judged = judgePredictionAgain(at.result, planned, prediction, atPicks());
   } else {
     judged = judgePrediction(planned, prediction, atPicks());
     const weighed = weighedAnswers(planned, prediction, answers, judged, options, subjects);
@@ -279,16 +283,33 @@ function weighedFirst(
   prediction: Prediction,
   answers: LossScaleAnswer[],
   subjects: ScaledSubjects,
+  formats: readonly FormatName[],
   options: CheckAnswerOptions,
-): LossScaleAnswer[] | null {
+): { answers: LossScaleAnswer[]; judged: { log2: number; result: CheckResult } | null } | null {
   if (options.lossScale !== undefined || spec.precision.lossScale !== undefined) return null;
   for (const answer of answers) {
     if (answer.window.pickLog2 !== null && !centreLeavesFindings(subjects, answer.format, answer.window, options)) return null;
   }
-  return answers.map((answer) => {
-    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, undefined, subjects);
+  // with one answer, for a format judged, the weighing's first scale judged whole is judged as check judges the pick:
+  // most often it is the pick (the largest scale keeping the margin where the centre only flushes), whose judgement
+  // then serves
+  let judged: { log2: number; result: CheckResult } | null = null;
+  const only = answers.length === 1 ? answers[0] : undefined;
+  const judgeAt =
+    only === undefined || !formats.includes(only.format)
+      ? undefined
+      : (log2: number): CheckResult | null => {
+          const at: LossScaleAnswer = { ...only, window: { ...only.window, pickLog2: log2 } };
+          const result = judgePrediction(spec, prediction, { ...options, lossScaleWindows: [windowSummary(at)] });
+          judged = { log2, result };
+          const formatCheck = result.formats.find((f) => f.format === only.format);
+          return formatCheck !== undefined && (formatCheck.lossScale ?? result.lossScale).value === 2 ** log2 ? result : null;
+        };
+  const weighed = answers.map((answer) => {
+    const found = weighPick(spec, prediction, answer.format, answer.window, answer.options.marginBinades, options, undefined, subjects, judgeAt);
     return found === null ? answer : withWeighedPick(answer, found.pickLog2, found.weighing);
   });
+  return { answers: weighed, judged };
 }
 
 // a library caller passing something other than a loaded spec gets a TypeError naming it, not a property read deep inside

@@ -146,6 +146,9 @@ export function fewerFindings(a: ScaledFindings, b: ScaledFindings): boolean {
  * exponent judged before go first), which gives the same pick as judging every exponent whole; where the centre's
  * findings are all of the flush side, the largest scale that keeps the margin is judged first, so that a best found
  * early stops the others sooner (the order judged does not move the pick).
+ * `judgeAt`, when given, is asked for the caller's whole judgement at the largest scale judged first (that of the
+ * flush side above): one that holds `format` at that scale gives its count there, and the caller keeps it for its own
+ * judgement where that scale is the pick; null where it gives none.
  * Returns null when the window is empty, or the centre leaves no such finding and 1 is the centre or lies outside
  * the window (the centre stands unweighed).
  */
@@ -158,6 +161,7 @@ export function weighPick(
   options: CheckOptions,
   atCentre?: { findings: ScaledFindings; tensors: ReadonlySet<string>; sites: ReadonlySet<string> },
   made?: ScaledSubjects,
+  judgeAt?: (log2: number) => CheckResult | null,
 ): { pickLog2: number; weighing: PickWeighing } | null {
   if (window.empty || window.pickLog2 === null) return null;
   const centre = window.pickLog2;
@@ -231,6 +235,9 @@ export function weighPick(
       for (const k of candidates) if (k > centre && keepsMargin(k) && (probe === null || k > probe)) probe = k;
     }
     if (probe !== null) {
+      // the caller's whole judgement there, when it gives one, gives the probe's count (`judgeAt`, see above)
+      const judged = judgeAt?.(probe) ?? null;
+      if (judged !== null && !whole.has(probe)) whole.set(probe, scaledFindings(judged, format));
       candidates.splice(candidates.indexOf(probe), 1);
       candidates.unshift(probe);
     }

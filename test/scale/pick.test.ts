@@ -8,6 +8,7 @@ import { buildGraph } from "../../src/graph/index.js";
 import { predictForCheck } from "../../src/magnitude/predict.js";
 import { judgeScaled, scaledSubjects } from "../../src/risk/judge.js";
 import { centreLeavesFindings } from "../../src/scale/pick.js";
+import { mlpSpec } from "../../bench/generated-specs.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
 
 // The weighed pick (src/scale/pick.ts) is checked against the check itself: the spec judged at every scale of the
@@ -289,6 +290,28 @@ describe("a centre's findings told before the judgement", () => {
       expect(probed).toBe(told);
     });
   }
+});
+
+describe("a pick weighed before the judgement, judged at its largest scale first", () => {
+  it("the benchmarks' 1,000-layer spec at weight growth 1: the centre flushes gradients only, and the largest scale keeping the margin leaves none and is the pick", () => {
+    // that scale is judged whole as check judges its pick (src/check.ts weighedFirst), and that judgement is check's
+    const spec = mlpSpec(1);
+    spec.training = { ...spec.training, horizon: { ...spec.training.horizon, weightGrowth: 1 } };
+    const result = check(spec);
+    const answer = result.lossScaleAnswer!;
+    const weighing = answer.weighing!;
+    const pick = answer.window.pickLog2!;
+    expect(weighing.atCentre.overflowSide).toBe(0);
+    expect(weighing.atCentre.atRisk).toBeGreaterThan(0);
+    expect(pick).toBe(answer.window.highestLog2! - answer.options.marginBinades);
+    expect(weighing.atCentre).toEqual(counted(check(spec, { lossScale: 2 ** weighing.centreLog2 }), answer.format));
+    const atPick = check(spec, { lossScale: 2 ** pick });
+    expect(weighing.atPick).toEqual(counted(atPick, answer.format));
+    expect(counted(result, answer.format)).toEqual(weighing.atPick);
+    expect(result.lossScale).toMatchObject({ value: 2 ** pick, origin: "recommended" });
+    // every finding of every format as judged at the pick given as a scale
+    expect(result.formats.map((f) => f.findings)).toEqual(atPick.formats.map((f) => f.findings));
+  });
 });
 
 describe("the scales the pick weighs are judged for their counts alone", () => {
