@@ -1263,27 +1263,64 @@ function lagrangeWeights(into: Float64Array, scale: Float64Array, s: number): vo
 }
 // the point S_WEIGHTS were last taken at (NaN: never)
 const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
-// the interpolated log of the rows firstRow … (ROW_LOGS or ROW_COMPLEMENT_LOGS) over x_first …; NaN where a point is 0
+// the interpolated log of the rows firstRow … (ROW_LOGS or ROW_COMPLEMENT_LOGS) over x_first …; NaN where a point is 0.
+// A row's six points are read into locals and summed in the order of the weights, as the loop over them would (the
+// same value); a row with a point not yet computed takes that loop (patchRowLog), which fills it
 function patchLog(rows: (Window | undefined)[], measure: number, firstRow: number, first: number): number {
+  const x0 = X_WEIGHTS[0] as number;
+  const x1 = X_WEIGHTS[1] as number;
+  const x2 = X_WEIGHTS[2] as number;
+  const x3 = X_WEIGHTS[3] as number;
+  const x4 = X_WEIGHTS[4] as number;
+  const x5 = X_WEIGHTS[5] as number;
+  const complement = rows === ROW_COMPLEMENT_LOGS;
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) {
     const a = firstRow + r;
     const row = rowWindow(rows, 2 * a + measure, first, first + TABLE_POINTS - 1);
+    const values = row.values;
     const at = first - row.base;
-    let sum = 0;
-    for (let k = 0; k < TABLE_POINTS; k++) {
-      let log = row.values[at + k] as number;
-      if (log !== log) {
-        rowPoint(measure, a, first + k);
-        // rowPoint may have grown this window
-        log = (rows[2 * a + measure] as Window).values[first + k - (rows[2 * a + measure] as Window).base] as number;
-      }
-      if (log === -Infinity) return NaN;
-      sum += (X_WEIGHTS[k] as number) * log;
+    const l0 = values[at] as number;
+    const l1 = values[at + 1] as number;
+    const l2 = values[at + 2] as number;
+    const l3 = values[at + 3] as number;
+    const l4 = values[at + 4] as number;
+    const l5 = values[at + 5] as number;
+    // NaN where a point is not yet computed; −∞ where one is 0 (no log is +∞: a share is at most 1)
+    const all = l0 + l1 + l2 + l3 + l4 + l5;
+    let sum: number;
+    if (all !== all) {
+      sum = patchRowLog(rows, measure, a, first);
+      if (sum !== sum) return NaN;
+    } else {
+      if (all === -Infinity) return NaN;
+      sum = 0;
+      sum += x0 * l0;
+      sum += x1 * l1;
+      sum += x2 * l2;
+      sum += x3 * l3;
+      sum += x4 * l4;
+      sum += x5 * l5;
     }
-    result += (S_WEIGHTS[r] as number) * (rows === ROW_COMPLEMENT_LOGS ? a * a * sum : sum);
+    result += (S_WEIGHTS[r] as number) * (complement ? a * a * sum : sum);
   }
   return result;
+}
+// row a's sum of patchLog, filling the points not yet computed (NaN where a point is 0)
+function patchRowLog(rows: (Window | undefined)[], measure: number, a: number, first: number): number {
+  let sum = 0;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    const row = rows[2 * a + measure] as Window;
+    let log = row.values[first + k - row.base] as number;
+    if (log !== log) {
+      rowPoint(measure, a, first + k);
+      // rowPoint may have grown this window
+      log = (rows[2 * a + measure] as Window).values[first + k - (rows[2 * a + measure] as Window).base] as number;
+    }
+    if (log === -Infinity) return NaN;
+    sum += (X_WEIGHTS[k] as number) * log;
+  }
+  return sum;
 }
 // the Gaussian share (kind BELOW or ENERGY_BELOW) over draws at x = log2(t/rms), from the rows; NaN where the
 // direct rule decides
