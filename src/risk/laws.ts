@@ -1267,12 +1267,6 @@ const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
 // A row's six points are read into locals and summed in the order of the weights, as the loop over them would (the
 // same value); a row with a point not yet computed takes that loop (patchRowLog), which fills it
 function patchLog(rows: (Window | undefined)[], measure: number, firstRow: number, first: number): number {
-  const x0 = X_WEIGHTS[0] as number;
-  const x1 = X_WEIGHTS[1] as number;
-  const x2 = X_WEIGHTS[2] as number;
-  const x3 = X_WEIGHTS[3] as number;
-  const x4 = X_WEIGHTS[4] as number;
-  const x5 = X_WEIGHTS[5] as number;
   const complement = rows === ROW_COMPLEMENT_LOGS;
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) {
@@ -1295,12 +1289,12 @@ function patchLog(rows: (Window | undefined)[], measure: number, firstRow: numbe
     } else {
       if (all === -Infinity) return NaN;
       sum = 0;
-      sum += x0 * l0;
-      sum += x1 * l1;
-      sum += x2 * l2;
-      sum += x3 * l3;
-      sum += x4 * l4;
-      sum += x5 * l5;
+      sum += (X_WEIGHTS[0] as number) * l0;
+      sum += (X_WEIGHTS[1] as number) * l1;
+      sum += (X_WEIGHTS[2] as number) * l2;
+      sum += (X_WEIGHTS[3] as number) * l3;
+      sum += (X_WEIGHTS[4] as number) * l4;
+      sum += (X_WEIGHTS[5] as number) * l5;
     }
     result += (S_WEIGHTS[r] as number) * (complement ? a * a * sum : sum);
   }
@@ -2531,23 +2525,48 @@ function levelTableValue(spread: number, p: number): number {
   for (let r = 0; r < SPREAD_POINTS; r++) {
     const a = firstRow + r;
     const row = rowWindow(rows, a, first, first + TABLE_POINTS - 1);
+    const values = row.values;
     const at = first - row.base;
+    const l0 = values[at] as number;
+    const l1 = values[at + 1] as number;
+    const l2 = values[at + 2] as number;
+    const l3 = values[at + 3] as number;
+    const l4 = values[at + 4] as number;
+    const l5 = values[at + 5] as number;
     let sum = 0;
-    for (let k = 0; k < TABLE_POINTS; k++) {
-      let level = row.values[at + k] as number;
-      if (level !== level) {
-        STATE[I_COUNT] = Math.exp((first + k) / GRID_PER_LN);
-        row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
-        STATE[I_COUNT] = count;
-        // read back from the table: a level taken from the call's return value made the compiler keep every level of
-        // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
-        level = row.values[at + k] as number;
-      }
-      sum += (N_WEIGHTS[k] as number) * level;
+    // a row's six levels summed in the weights' order, as the loop of levelRowSum does (the same value); a row with a
+    // level not yet computed (NaN) takes that loop, which fills it
+    const all = l0 + l1 + l2 + l3 + l4 + l5;
+    if (all !== all) sum = levelRowSum(row, a, first, count, p);
+    else {
+      sum += (N_WEIGHTS[0] as number) * l0;
+      sum += (N_WEIGHTS[1] as number) * l1;
+      sum += (N_WEIGHTS[2] as number) * l2;
+      sum += (N_WEIGHTS[3] as number) * l3;
+      sum += (N_WEIGHTS[4] as number) * l4;
+      sum += (N_WEIGHTS[5] as number) * l5;
     }
     result += (S_WEIGHTS[r] as number) * sum;
   }
   return result;
+}
+// row a's sum of levelTableValue at the count's points from `first`, filling the levels not yet computed
+function levelRowSum(row: Window, a: number, first: number, count: number, p: number): number {
+  const at = first - row.base;
+  let sum = 0;
+  for (let k = 0; k < TABLE_POINTS; k++) {
+    let level = row.values[at + k] as number;
+    if (level !== level) {
+      STATE[I_COUNT] = Math.exp((first + k) / GRID_PER_LN);
+      row.values[at + k] = anyAboveLevel(a * ROW_STEP, p);
+      STATE[I_COUNT] = count;
+      // read back from the table: a level taken from the call's return value made the compiler keep every level of
+      // the loop as a heap number (~900 bytes of garbage a look-up, 3.5 MB a fresh 1,000-layer check)
+      level = row.values[at + k] as number;
+    }
+    sum += (N_WEIGHTS[k] as number) * level;
+  }
+  return sum;
 }
 
 // Tables of the Gaussian "below" levels (the predicted low magnitude): the level where the share below is p depends on
