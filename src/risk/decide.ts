@@ -17,8 +17,8 @@ import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
 import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
-import { overflowAtRiskThreshold } from "./tensor.js";
-import { FOUND, NO_FINDINGS, overflowFinding } from "./tensor-finding.js";
+import { noLiftRemedy, overflowAtRiskThreshold, plainRemedy, subnormalFinding } from "./tensor.js";
+import { FOUND, NO_FINDINGS, overflowFinding, overflowRiskFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and
@@ -129,23 +129,30 @@ export class FormatDecision {
   }
 }
 
+// What the shares below the flush bound decide of a side (belowCode): no finding can come from them; none but the
+// subnormal noise's (its number past the limit); or the side is judged from its numbers
+const BELOW_DECIDED = 0;
+const NOISE_PAST = 1;
+const BELOW_OPEN = 2;
+
 /**
  * Whether no finding of the shares below the flush bound can come from the side: the share of elements flushed at most
- * its at-risk threshold, a gradient's flushed energy too, and the subnormal noise at most its limit. Each by its bound
- * at half the threshold, else by the number itself: a side's reported share is that call's value or 0 (settledRisk).
+ * its at-risk threshold, a gradient's flushed energy too, and the subnormal noise at most its limit (BELOW_DECIDED).
+ * Each by its bound at half the threshold, else by the number itself: a side's reported share is that call's value or 0
+ * (settledRisk). NOISE_PAST where only the noise is past its limit, BELOW_OPEN where a share may be.
  */
-function belowDecided(side: Side, d: FormatDecision, gradient: boolean): boolean {
-  if (side.count === 0) return true;
+function belowCode(side: Side, d: FormatDecision, gradient: boolean): number {
+  if (side.count === 0) return BELOW_DECIDED;
   const profile = side.profile as MagnitudeProfile;
   const limits = d.limits;
   const flushBound = limits.flushBound;
   // at or past a bound the Gaussian's share is not the law's: judged from the numbers
-  if (side.bound > 0 && !(flushBound < side.bound)) return false;
+  if (side.bound > 0 && !(flushBound < side.bound)) return BELOW_OPEN;
   const a = flushBound / side.rms;
-  if (!capWithin(DENSITY * a, side.m, d.flushed / 2) && !(fractionBelow(profile, flushBound) <= d.flushed)) return false;
-  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2) && !(energyBelow(profile, flushBound) <= d.energy)) return false;
+  if (!capWithin(DENSITY * a, side.m, d.flushed / 2) && !(fractionBelow(profile, flushBound) <= d.flushed)) return BELOW_OPEN;
+  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2) && !(energyBelow(profile, flushBound) <= d.energy)) return BELOW_OPEN;
   // the noise by its bound at half the limit (the noise is computed within 2e-7 of its integral's shares), else itself
-  return gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2) || subnormalNoise(profile, limits) <= d.noiseLimit;
+  return gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2) || subnormalNoise(profile, limits) <= d.noiseLimit ? BELOW_DECIDED : NOISE_PAST;
 }
 
 // Whether the probability that some of the side's nonzero elements reach t in a step, over draws, is at most `target`,
@@ -196,8 +203,16 @@ export function decidedFindings(
   const gradient = role === "activation-gradient" || role === "weight-gradient";
   const first = d.start;
   const last = same ? first : d.end;
-  if (!first.read(start) || !belowDecided(first, d, gradient)) return null;
-  if (!same && (!last.read(end) || !belowDecided(last, d, gradient))) return null;
+  if (!first.read(start)) return null;
+  const firstBelow = belowCode(first, d, gradient);
+  if (firstBelow === BELOW_OPEN) return null;
+  let lastBelow = firstBelow;
+  if (!same) {
+    if (!last.read(end)) return null;
+    lastBelow = belowCode(last, d, gradient);
+    if (lastBelow === BELOW_OPEN) return null;
+  }
+  const noisy = firstBelow === NOISE_PAST || lastBelow === NOISE_PAST;
   const startRisk = overflowDecided(first, d);
   const endRisk = same ? startRisk : overflowDecided(last, d);
   d.startOverflow = startRisk;
@@ -205,6 +220,8 @@ export function decidedFindings(
   const worst = Math.max(startRisk, endRisk);
   const t = d.thresholds;
   if (!(worst > d.finding)) {
+    // the noise's finding beside the headroom's: judged from the numbers
+    if (noisy) return null;
     // no overflow finding: the headroom's, unless both sides keep the headroom asked for
     if (!headroomDecided(last, d)) return null;
     if (!same && !headroomDecided(first, d)) return null;
@@ -214,7 +231,55 @@ export function decidedFindings(
   if (startRisk === endRisk && !same) return null;
   const severity: Exclude<Verdict, "fits"> = worst > t.overflowFails ? "fails" : "at-risk";
   const at = endRisk > startRisk ? "end" : "start";
+  if (noisy) return overflowAndNoise(tensor, d, same, severity, worst, at);
   return overflowFinding(tensor.id, d.limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
+}
+
+// the options of a format without scale factors, as plainRemedy reads them
+const UNSCALED = { perTensorScaling: false, blockScaling: null };
+
+/**
+ * The overflow finding and the subnormal noise's of a tensor whose noise is past its limit on some side (and no other
+ * share past its threshold), as tensorFindings gives them from its numbers; null where they need more of its numbers
+ * (a tie of the two sides' noise, told apart by the flushed energy; a gradient whose overflow probability does not
+ * show that it lacks the headroom a loss scale would need). The noise of each side is settledRisk's (0 where its share
+ * of subnormal elements is 0 unsettled), by the same calls.
+ */
+function overflowAndNoise(tensor: TensorPrediction, d: FormatDecision, same: boolean, severity: Exclude<Verdict, "fits">, worst: number, at: "start" | "end"): Finding[] | null {
+  const t = d.thresholds;
+  const limits = d.limits;
+  const first = d.start;
+  const last = same ? first : d.end;
+  if (first.count === 0 || last.count === 0) return null;
+  const startNoise = settledNoise(first, limits);
+  const endNoise = same ? startNoise : settledNoise(last, limits);
+  const noise = Math.max(startNoise, endNoise);
+  if (!(noise > d.noiseLimit)) return null;
+  // one distribution: both sides' numbers are one object, whose flushed energy ties at the start (worseOf)
+  if (!same && startNoise === endNoise) return null;
+  const noiseAt = endNoise > startNoise ? "end" : "start";
+  let remedy = plainRemedy(tensor, limits, UNSCALED, false);
+  if (remedy === null) {
+    // a gradient's remedy is the smallest loss scale within its headroom less headroomAtRisk binades that lifts the
+    // noise: none where its headroom is under 1 + headroomAtRisk (subnormalRemedy). A side passing the overflow level
+    // (at least maxFinite) with probability 1/2 per step has its predicted max (passed with probability maxQuantile, at
+    // most 1/2: the same any-above law, src/risk/profile.ts) above that level, so a headroom below 0
+    if (!(t.headroomAtRisk >= 0 && t.maxQuantile <= 0.5 && worst >= 0.5)) return null;
+    remedy = noLiftRemedy(t);
+  }
+  const side = noiseAt === "start" ? first : last;
+  const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
+  FOUND[0] = overflowRiskFinding(tensor.id, limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
+  FOUND[1] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, true);
+  return FOUND.slice(0, 2);
+}
+
+// settledRisk's subnormal noise of a non-empty side: 0 where its share of subnormal elements is 0 and its flushed share
+// was not settled, else the noise
+function settledNoise(side: Side, limits: RangeLimits): number {
+  settle(side, limits);
+  const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
+  return fraction === 0 && !side.settled ? 0 : subnormalNoise(side.profile as MagnitudeProfile, limits);
 }
 
 // settledRisk's settle of a side's shares below the flush bound, by the same calls in the same order (src/risk/tensor.ts)

@@ -554,26 +554,48 @@ function tensorFindings(
   const limit = subnormalNoiseLimit(limits, t.subnormalNoiseAtRisk);
   if (worst.subnormalNoise > limit) {
     const at = moreAt(start.subnormalNoise, end.subnormalNoise, worst.flushAt);
-    findings[found++] = {
-      format,
-      subject,
-      source: "tensor",
-      kind: "subnormal-values",
-      severity: "at-risk",
-      value: worst.subnormalNoise,
-      threshold: limit,
-      at,
-      sentence: words
-        ? [
-            "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(worst.subnormalNoise),
-            " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
-            percent(at === "start" ? start.subnormalFraction : end.subnormalFraction), " of its nonzero elements are subnormal)",
-            subnormalRemedy(tensor, limits, limit, worst, options, scaled, row), ".",
-          ].join("")
-        : "",
-    };
+    findings[found++] = subnormalFinding(
+      subject, limits, t, limit, worst.subnormalNoise, at, at === "start" ? start.subnormalFraction : end.subnormalFraction,
+      words ? subnormalRemedy(tensor, limits, limit, worst, options, scaled, row) : "", words,
+    );
   }
   return findings.slice(0, found);
+}
+
+/**
+ * A tensor's subnormal-noise finding, as tensorFindings words it: `value` its worst noise, `limit` the format's
+ * (subnormalNoiseLimit), `fraction` the share of nonzero elements subnormal at `at`, `remedy` the sentence's end
+ * (subnormalRemedy); without words (a count) the sentence is empty.
+ */
+export function subnormalFinding(
+  subject: string,
+  limits: RangeLimits,
+  t: RiskThresholds,
+  limit: number,
+  value: number,
+  at: "start" | "end",
+  fraction: number,
+  remedy: string,
+  words: boolean,
+): Finding {
+  const format = limits.format;
+  return {
+    format,
+    subject,
+    source: "tensor",
+    kind: "subnormal-values",
+    severity: "at-risk",
+    value,
+    threshold: limit,
+    at,
+    sentence: words
+      ? [
+          "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(value),
+          " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
+          percent(fraction), " of its nonzero elements are subnormal)", remedy, ".",
+        ].join("")
+      : "",
+  };
 }
 
 // what the limit of the subnormal noise is, in words: the format's own rounding noise when that is the larger, the
@@ -598,6 +620,31 @@ function subnormalRemedy(
   scaled: ScaledTensor,
   row: boolean,
 ): string {
+  const plain = plainRemedy(tensor, limits, options, row);
+  if (plain !== null) return plain;
+  const headroom = worst.headroom ?? 0;
+  const most = Math.floor(headroom - options.thresholds.headroomAtRisk);
+  // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
+  const lift = smallestStep(most, (j) => {
+    const factor = 2 ** j;
+    if (!noiseAtMost(riskProfile(scaled.start, factor), limits, limit)) return false;
+    return scaled.same || noiseAtMost(riskProfile(scaled.end, factor), limits, limit);
+  });
+  const factor = scaled.statistics.factor;
+  if (lift === null) return noLiftRemedy(options.thresholds);
+  return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
+}
+
+/**
+ * {@link subnormalRemedy} where it needs no search: a probability row, scale factors, a tensor that is not a gradient;
+ * null for a gradient, whose remedy is a loss scale searched within its headroom.
+ */
+export function plainRemedy(
+  tensor: Pick<TensorPrediction, "role">,
+  limits: RangeLimits,
+  options: Pick<TensorRiskOptions, "perTensorScaling" | "blockScaling">,
+  row: boolean,
+): string | null {
   if (row) return "; keeping the probabilities in a format with more range (bfloat16) would keep them normal";
   if (options.perTensorScaling) {
     return options.blockScaling
@@ -609,17 +656,10 @@ function subnormalRemedy(
       ? "; per-tensor scale factors (scaling: tensor) or a format with a wider normal range would keep them normal"
       : "; a larger scale of this tensor (its initialisation, a norm's gain) or a format with a wider normal range (bfloat16) would keep them normal";
   }
-  const headroom = worst.headroom ?? 0;
-  const most = Math.floor(headroom - options.thresholds.headroomAtRisk);
-  // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
-  const lift = smallestStep(most, (j) => {
-    const factor = 2 ** j;
-    if (!noiseAtMost(riskProfile(scaled.start, factor), limits, limit)) return false;
-    return scaled.same || noiseAtMost(riskProfile(scaled.end, factor), limits, limit);
-  });
-  const factor = scaled.statistics.factor;
-  if (lift === null) {
-    return `; no loss scale that leaves it ${binades(options.thresholds.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
-  }
-  return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
+  return null;
+}
+
+/** {@link subnormalRemedy} of a gradient where no loss scale keeping the headroom asked for lifts its subnormal elements. */
+export function noLiftRemedy(t: Pick<RiskThresholds, "headroomAtRisk">): string {
+  return `; no loss scale that leaves it ${binades(t.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
 }

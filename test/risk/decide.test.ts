@@ -188,6 +188,36 @@ describe("findings decided by bounds", () => {
     expect(left).toBeGreaterThan(50);
   });
 
+  it("decide a subnormal noise past its limit beside an overflow, as the numbers give both findings", () => {
+    // a side in the subnormal band of binary16 (smallest normal 2^-14) and one overflowing (65520): the 1,000-layer
+    // spec's growing weight gradients, whose remedy no loss scale gives (no headroom left)
+    const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+    let both = 0;
+    fc.assert(
+      fc.property(
+        fc.constantFrom<TensorRole>("weight-gradient", "activation-gradient", "activation"),
+        fc.constantFrom(BINARY16, E5M2),
+        fc.double({ min: -19, max: -11, noNaN: true }),
+        fc.double({ min: 1, max: 3, noNaN: true }),
+        fc.double({ min: 10, max: 24, noNaN: true }),
+        fc.boolean(),
+        (role, limits, low, spread, high, lowFirst) => {
+          const quiet: MagnitudeProfile = { elements: 65536, zeroFraction: 0, shape: "gaussian", rms: 2 ** low, log2Spread: spread };
+          const loud: MagnitudeProfile = { elements: 65536, zeroFraction: 0, shape: "gaussian", rms: 2 ** high, log2Spread: spread / 2 };
+          const [start, end] = lowFirst ? [quiet, loud] : [loud, quiet];
+          const tensor = { id: `dense-1/${role}`, layer: "dense-1", role, start, end } as unknown as TensorPrediction;
+          const found = decidedFindings(tensor, start, end, false, new FormatDecision(limits, DEFAULT_THRESHOLDS));
+          if (found === null) return;
+          const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options).findings;
+          expect(found).toEqual(full);
+          if (found.length === 2 && found[1]?.kind === "subnormal-values") both++;
+        },
+      ),
+      { numRuns: 600 },
+    );
+    expect(both).toBeGreaterThan(30);
+  });
+
   it("leave a tie of overflow probabilities, and laws other than the Gaussian's, to the numbers", () => {
     const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
     const hot = { elements: 4096, zeroFraction: 0, shape: "gaussian" as const, rms: 2 ** 20, log2Spread: 0 };
