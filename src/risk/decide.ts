@@ -17,7 +17,7 @@ import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
 import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
-import { noLiftRemedy, overflowAtRiskThreshold, plainRemedy, subnormalFinding } from "./tensor.js";
+import { liftRemedy, noLiftRemedy, overflowAtRiskThreshold, plainRemedy, subnormalFinding } from "./tensor.js";
 import { FOUND, NO_FINDINGS, overflowFinding, overflowRiskFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
@@ -189,7 +189,9 @@ function overflowDecided(side: Side, d: FormatDecision): number {
  * from its numbers). `start` and `end` are the profiles after the loss-scale factor; `same` when they are one
  * distribution. For a format that holds the tensor, without scale factors, and a tensor that is not a probability row
  * (the caller's conditions); `decision` is the format's, made once for every tensor the format judges. No findings is
- * the shared NO_FINDINGS (src/risk/tensor-finding.ts), which the caller copies where it hands the array out.
+ * the shared NO_FINDINGS (src/risk/tensor-finding.ts), which the caller copies where it hands the array out. `factor`:
+ * the loss-scale factor the profiles carry (a gradient's subnormal remedy names the scale); `words` false for findings
+ * only counted (TensorRiskOptions.countOnly: the noise's sentence left empty, as tensorFindings leaves it).
  */
 export function decidedFindings(
   tensor: TensorPrediction,
@@ -197,6 +199,8 @@ export function decidedFindings(
   end: MagnitudeProfile,
   same: boolean,
   decision: FormatDecision,
+  factor = 1,
+  words = true,
 ): Finding[] | null {
   const d = decision;
   const role = tensor.role;
@@ -220,18 +224,16 @@ export function decidedFindings(
   const worst = Math.max(startRisk, endRisk);
   const t = d.thresholds;
   if (!(worst > d.finding)) {
-    // the noise's finding beside the headroom's: judged from the numbers
-    if (noisy) return null;
     // no overflow finding: the headroom's, unless both sides keep the headroom asked for
     if (!headroomDecided(last, d)) return null;
     if (!same && !headroomDecided(first, d)) return null;
-    return NO_FINDINGS;
+    return noisy ? noiseAlone(tensor, d, same, factor, words) : NO_FINDINGS;
   }
   // a tie is told apart by the headroom (worseOf): judged from the numbers
   if (startRisk === endRisk && !same) return null;
   const severity: Exclude<Verdict, "fits"> = worst > t.overflowFails ? "fails" : "at-risk";
   const at = endRisk > startRisk ? "end" : "start";
-  if (noisy) return overflowAndNoise(tensor, d, same, severity, worst, at);
+  if (noisy) return overflowAndNoise(tensor, d, same, severity, worst, at, words);
   return overflowFinding(tensor.id, d.limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
 }
 
@@ -245,7 +247,15 @@ const UNSCALED = { perTensorScaling: false, blockScaling: null };
  * show that it lacks the headroom a loss scale would need). The noise of each side is settledRisk's (0 where its share
  * of subnormal elements is 0 unsettled), by the same calls.
  */
-function overflowAndNoise(tensor: TensorPrediction, d: FormatDecision, same: boolean, severity: Exclude<Verdict, "fits">, worst: number, at: "start" | "end"): Finding[] | null {
+function overflowAndNoise(
+  tensor: TensorPrediction,
+  d: FormatDecision,
+  same: boolean,
+  severity: Exclude<Verdict, "fits">,
+  worst: number,
+  at: "start" | "end",
+  words: boolean,
+): Finding[] | null {
   const t = d.thresholds;
   const limits = d.limits;
   const first = d.start;
@@ -258,7 +268,7 @@ function overflowAndNoise(tensor: TensorPrediction, d: FormatDecision, same: boo
   // one distribution: both sides' numbers are one object, whose flushed energy ties at the start (worseOf)
   if (!same && startNoise === endNoise) return null;
   const noiseAt = endNoise > startNoise ? "end" : "start";
-  let remedy = plainRemedy(tensor, limits, UNSCALED, false);
+  let remedy = words ? plainRemedy(tensor, limits, UNSCALED, false) : "";
   if (remedy === null) {
     // a gradient's remedy is the smallest loss scale within its headroom less headroomAtRisk binades that lifts the
     // noise: none where its headroom is under 1 + headroomAtRisk (subnormalRemedy). A side passing the overflow level
@@ -270,8 +280,41 @@ function overflowAndNoise(tensor: TensorPrediction, d: FormatDecision, same: boo
   const side = noiseAt === "start" ? first : last;
   const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
   FOUND[0] = overflowRiskFinding(tensor.id, limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
-  FOUND[1] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, true);
+  FOUND[1] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, words);
   return FOUND.slice(0, 2);
+}
+
+/**
+ * The subnormal noise's finding of a tensor whose noise is past its limit on some side, and no other finding (the
+ * shares below the flush bound within their thresholds, no overflow, the headroom kept), as tensorFindings gives it from
+ * its numbers; null for a tie of the two sides' noise (told apart by the flushed energy). A gradient's remedy is
+ * searched within its headroom, from the predicted max of each side (profileStatistics, as its statistics take it);
+ * `factor` is the tensor's loss-scale factor, which the profiles carry.
+ */
+function noiseAlone(tensor: TensorPrediction, d: FormatDecision, same: boolean, factor: number, words: boolean): Finding[] | null {
+  const t = d.thresholds;
+  const limits = d.limits;
+  const first = d.start;
+  const last = same ? first : d.end;
+  if (first.count === 0 || last.count === 0) return null;
+  const startNoise = settledNoise(first, limits);
+  const endNoise = same ? startNoise : settledNoise(last, limits);
+  const noise = Math.max(startNoise, endNoise);
+  if (!(noise > d.noiseLimit)) return null;
+  if (!same && startNoise === endNoise) return null;
+  const noiseAt = endNoise > startNoise ? "end" : "start";
+  let remedy = words ? plainRemedy(tensor, limits, UNSCALED, false) : "";
+  if (remedy === null) {
+    const start = first.profile as MagnitudeProfile;
+    const end = last.profile as MagnitudeProfile;
+    const startHeadroom = Math.log2(limits.maxFinite / profileStatistics(start, t).max);
+    const headroom = same ? startHeadroom : Math.min(startHeadroom, Math.log2(limits.maxFinite / profileStatistics(end, t).max));
+    remedy = liftRemedy(start, end, same, factor, headroom, limits, d.noiseLimit, t);
+  }
+  const side = noiseAt === "start" ? first : last;
+  const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
+  FOUND[0] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, words);
+  return FOUND.slice(0, 1);
 }
 
 // settledRisk's subnormal noise of a non-empty side: 0 where its share of subnormal elements is 0 and its flushed share

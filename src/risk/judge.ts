@@ -752,7 +752,7 @@ function judgeTensor(
           start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
           end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
           const decision = setting.decision;
-          findings = decidedFindings(tensor, start, end, same, decision);
+          findings = decidedFindings(tensor, start, end, same, decision, factor, options.countOnly !== true);
           startOverflow = decision.startOverflow;
           endOverflow = decision.endOverflow;
         }

@@ -622,16 +622,32 @@ function subnormalRemedy(
 ): string {
   const plain = plainRemedy(tensor, limits, options, row);
   if (plain !== null) return plain;
-  const headroom = worst.headroom ?? 0;
-  const most = Math.floor(headroom - options.thresholds.headroomAtRisk);
+  return liftRemedy(scaled.start, scaled.end, scaled.same, scaled.statistics.factor, worst.headroom ?? 0, limits, limit, options.thresholds);
+}
+
+/**
+ * {@link subnormalRemedy} of a gradient: the smallest power-of-two loss scale above the present one (`factor`) at which
+ * both profiles (`start`, `end`: after that factor; `same` when one distribution) are within the limit, searched within
+ * `headroom` (the worse side's) less the headroom the check asks for.
+ */
+export function liftRemedy(
+  start: MagnitudeProfile,
+  end: MagnitudeProfile,
+  same: boolean,
+  factor: number,
+  headroom: number,
+  limits: RangeLimits,
+  limit: number,
+  t: Pick<RiskThresholds, "headroomAtRisk">,
+): string {
+  const most = Math.floor(headroom - t.headroomAtRisk);
   // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
   const lift = smallestStep(most, (j) => {
-    const factor = 2 ** j;
-    if (!noiseAtMost(riskProfile(scaled.start, factor), limits, limit)) return false;
-    return scaled.same || noiseAtMost(riskProfile(scaled.end, factor), limits, limit);
+    const step = 2 ** j;
+    if (!noiseAtMost(riskProfile(start, step), limits, limit)) return false;
+    return same || noiseAtMost(riskProfile(end, step), limits, limit);
   });
-  const factor = scaled.statistics.factor;
-  if (lift === null) return noLiftRemedy(options.thresholds);
+  if (lift === null) return noLiftRemedy(t);
   return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
 }
 

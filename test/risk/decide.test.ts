@@ -218,6 +218,39 @@ describe("findings decided by bounds", () => {
     expect(both).toBeGreaterThan(30);
   });
 
+  it("decide a subnormal noise past its limit alone, its remedy a loss scale searched within the headroom", () => {
+    // one side in the subnormal band of binary16 (smallest normal 2^-14), the other moved by a few binades and far from
+    // overflow: a gradient's remedy names the loss scale that lifts both within the limit, or says none does
+    const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+    let alone = 0;
+    let lifted = 0;
+    fc.assert(
+      fc.property(
+        fc.constantFrom<TensorRole>("weight-gradient", "activation-gradient", "activation"),
+        fc.constantFrom(BINARY16, E5M2),
+        fc.double({ min: -19, max: -11, noNaN: true }),
+        fc.double({ min: 1, max: 3, noNaN: true }),
+        fc.double({ min: -4, max: 8, noNaN: true }),
+        fc.boolean(),
+        (role, limits, low, spread, moved, same) => {
+          const start: MagnitudeProfile = { elements: 65536, zeroFraction: 0, shape: "gaussian", rms: 2 ** low, log2Spread: spread };
+          const end = same ? start : riskProfile(start, 2 ** moved);
+          const tensor = { id: `dense-1/${role}`, layer: "dense-1", role, start, end } as unknown as TensorPrediction;
+          const found = decidedFindings(tensor, start, end, same, new FormatDecision(limits, DEFAULT_THRESHOLDS));
+          if (found === null) return;
+          expect(found).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options).findings);
+          if (found.length === 1 && found[0]?.kind === "subnormal-values") {
+            alone++;
+            if (found[0].sentence.includes("a loss scale of")) lifted++;
+          }
+        },
+      ),
+      { numRuns: 600 },
+    );
+    expect(alone).toBeGreaterThan(30);
+    expect(lifted).toBeGreaterThan(5);
+  });
+
   it("leave a tie of overflow probabilities, and laws other than the Gaussian's, to the numbers", () => {
     const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
     const hot = { elements: 4096, zeroFraction: 0, shape: "gaussian" as const, rms: 2 ** 20, log2Spread: 0 };
