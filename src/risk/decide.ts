@@ -17,8 +17,8 @@ import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
 import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
-import { liftRemedy, noLiftRemedy, overflowAtRiskThreshold, plainRemedy, subnormalFinding } from "./tensor.js";
-import { FOUND, NO_FINDINGS, overflowFinding, overflowRiskFinding } from "./tensor-finding.js";
+import { overflowAtRiskThreshold } from "./tensor.js";
+import { FOUND, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and

@@ -1,9 +1,15 @@
 /**
- * The findings array of the tensor being judged, and the overflow finding, the commonest: shared by the judgement from
- * the numbers (src/risk/tensor.ts) and the one decided by bounds (src/risk/decide.ts), so both word it alike.
+ * The findings array of the tensor being judged, the overflow finding, the commonest, and the subnormal noise's: shared by
+ * the judgement from the numbers (src/risk/tensor.ts) and the one decided by bounds (src/risk/decide.ts), so both word
+ * them alike.
  */
-import type { Finding, RangeLimits, Verdict } from "./types.js";
-import { plainNumber, when, Words } from "./words.js";
+import { FORMATS } from "../formats/index.js";
+import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
+import { DEFAULT_THRESHOLDS } from "./catalogue.js";
+import { noiseAtMost, smallestStep } from "./subnormal-noise.js";
+import type { TensorRiskOptions } from "./tensor.js";
+import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
+import { binades, percent, plainNumber, scaleWords, when, Words } from "./words.js";
 
 /**
  * The findings of the tensor being judged (its first entries), before they are copied out: one allocation site for every
@@ -73,4 +79,117 @@ export function overflowFinding(
 ): Finding[] {
   FOUND[0] = overflowRiskFinding(subject, limits, severity, value, threshold, at);
   return FOUND.slice(0, 1);
+}
+
+/**
+ * A tensor's subnormal-noise finding, as tensorFindings words it: `value` its worst noise, `limit` the format's
+ * (subnormalNoiseLimit), `fraction` the share of nonzero elements subnormal at `at`, `remedy` the sentence's end
+ * (subnormalRemedy); without words (a count) the sentence is empty.
+ */
+export function subnormalFinding(
+  subject: string,
+  limits: RangeLimits,
+  t: RiskThresholds,
+  limit: number,
+  value: number,
+  at: "start" | "end",
+  fraction: number,
+  remedy: string,
+  words: boolean,
+): Finding {
+  const format = limits.format;
+  return {
+    format,
+    subject,
+    source: "tensor",
+    kind: "subnormal-values",
+    severity: "at-risk",
+    value,
+    threshold: limit,
+    at,
+    sentence: words
+      ? [
+          "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(value),
+          " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
+          percent(fraction), " of its nonzero elements are subnormal)", remedy, ".",
+        ].join("")
+      : "",
+  };
+}
+
+// what the limit of the subnormal noise is, in words: the format's own rounding noise when that is the larger, the
+// default's bfloat16 (nothing for a limit the caller set)
+function limitWords(limits: RangeLimits, limit: number, atRisk: number): string {
+  if (limit > atRisk) return `, ${limits.format}'s own rounding noise`;
+  return atRisk === DEFAULT_THRESHOLDS.subnormalNoiseAtRisk ? ", bfloat16's rounding noise" : "";
+}
+
+/**
+ * A gradient's subnormal remedy (src/risk/tensor.ts subnormalRemedy): the smallest power-of-two loss scale above the present one (`factor`) at which
+ * both profiles (`start`, `end`: after that factor; `same` when one distribution) are within the limit, searched within
+ * `headroom` (the worse side's) less the headroom the check asks for.
+ */
+export function liftRemedy(
+  start: MagnitudeProfile,
+  end: MagnitudeProfile,
+  same: boolean,
+  factor: number,
+  headroom: number,
+  limits: RangeLimits,
+  limit: number,
+  t: Pick<RiskThresholds, "headroomAtRisk">,
+): string {
+  const most = Math.floor(headroom - t.headroomAtRisk);
+  // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
+  const lift = smallestStep(most, (j) => {
+    const step = 2 ** j;
+    if (!noiseAtMost(stepped(start, step), limits, limit)) return false;
+    return same || noiseAtMost(stepped(end, step), limits, limit);
+  });
+  if (lift === null) return noLiftRemedy(t);
+  return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
+}
+
+/**
+ * The subnormal remedy (src/risk/tensor.ts subnormalRemedy) where it needs no search: a probability row, scale factors, a tensor that is not a gradient;
+ * null for a gradient, whose remedy is a loss scale searched within its headroom.
+ */
+export function plainRemedy(
+  tensor: Pick<TensorPrediction, "role">,
+  limits: RangeLimits,
+  options: Pick<TensorRiskOptions, "perTensorScaling" | "blockScaling">,
+  row: boolean,
+): string | null {
+  if (row) return "; keeping the probabilities in a format with more range (bfloat16) would keep them normal";
+  if (options.perTensorScaling) {
+    return options.blockScaling
+      ? "; its elements span more binades than the format's normal range holds under one scale per block: a wider format would keep them"
+      : `; its elements span more binades than ${limits.format}'s normal range below the per-tensor scale: per-block scale factors or a wider format would keep them`;
+  }
+  if (tensor.role !== "activation-gradient" && tensor.role !== "weight-gradient") {
+    return FORMATS[limits.format].bits === 8
+      ? "; per-tensor scale factors (scaling: tensor) or a format with a wider normal range would keep them normal"
+      : "; a larger scale of this tensor (its initialisation, a norm's gain) or a format with a wider normal range (bfloat16) would keep them normal";
+  }
+  return null;
+}
+
+/** The subnormal remedy of a gradient where no loss scale keeping the headroom asked for lifts its subnormal elements. */
+export function noLiftRemedy(t: Pick<RiskThresholds, "headroomAtRisk">): string {
+  return `; no loss scale that leaves it ${binades(t.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
+}
+
+// the profile times a factor, as src/risk/tensor.ts riskProfile makes it (its fields and their order)
+function stepped(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
+  const bound = profile.bound;
+  return {
+    elements: profile.elements,
+    zeroFraction: profile.zeroFraction,
+    shape: profile.shape,
+    rms: profile.rms * factor,
+    log2Spread: profile.log2Spread,
+    bound: bound === undefined ? undefined : bound * factor,
+    elementLog2Spread: profile.elementLog2Spread,
+    mixture: profile.mixture,
+  };
 }

@@ -2,7 +2,6 @@
  * Risk of one predicted tensor in one format: the profile numbers at the start and at the end of the horizon,
  * the worse of the two, and the findings they raise against the thresholds.
  */
-import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
 import {
@@ -17,14 +16,13 @@ import {
   type ProfileStatistics,
 } from "./profile.js";
 import type { BlockScaledRisk } from "./blocks.js";
-import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { isEmpty } from "./laws.js";
-import { noiseAtMost, smallestStep, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
+import { subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
-import { binades, percent, plainNumber, scaleWords, sentenceStart, when } from "./words.js";
-import { FOUND, overflowRiskFinding } from "./tensor-finding.js";
+import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
+import { FOUND, liftRemedy, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import { normalCdf } from "./_math.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
@@ -563,49 +561,6 @@ function tensorFindings(
 }
 
 /**
- * A tensor's subnormal-noise finding, as tensorFindings words it: `value` its worst noise, `limit` the format's
- * (subnormalNoiseLimit), `fraction` the share of nonzero elements subnormal at `at`, `remedy` the sentence's end
- * (subnormalRemedy); without words (a count) the sentence is empty.
- */
-export function subnormalFinding(
-  subject: string,
-  limits: RangeLimits,
-  t: RiskThresholds,
-  limit: number,
-  value: number,
-  at: "start" | "end",
-  fraction: number,
-  remedy: string,
-  words: boolean,
-): Finding {
-  const format = limits.format;
-  return {
-    format,
-    subject,
-    source: "tensor",
-    kind: "subnormal-values",
-    severity: "at-risk",
-    value,
-    threshold: limit,
-    at,
-    sentence: words
-      ? [
-          "Rounding the subnormal elements of ", subject, " in ", format, " ", when(at), " adds noise of ", plainNumber(value),
-          " of its squared norm (limit ", plainNumber(limit), limitWords(limits, limit, t.subnormalNoiseAtRisk), "; ",
-          percent(fraction), " of its nonzero elements are subnormal)", remedy, ".",
-        ].join("")
-      : "",
-  };
-}
-
-// what the limit of the subnormal noise is, in words: the format's own rounding noise when that is the larger, the
-// default's bfloat16 (nothing for a limit the caller set)
-function limitWords(limits: RangeLimits, limit: number, atRisk: number): string {
-  if (limit > atRisk) return `, ${limits.format}'s own rounding noise`;
-  return atRisk === DEFAULT_THRESHOLDS.subnormalNoiseAtRisk ? ", bfloat16's rounding noise" : "";
-}
-
-/**
  * What would bring a tensor's subnormal noise within the limit, as the end of its finding's sentence. A gradient
  * without per-tensor scale factors: the smallest power-of-two loss scale above the present one at which both the start
  * and the end profile are within it, searched while the tensor keeps the headroom the check asks for (a scale that
@@ -623,59 +578,4 @@ function subnormalRemedy(
   const plain = plainRemedy(tensor, limits, options, row);
   if (plain !== null) return plain;
   return liftRemedy(scaled.start, scaled.end, scaled.same, scaled.statistics.factor, worst.headroom ?? 0, limits, limit, options.thresholds);
-}
-
-/**
- * {@link subnormalRemedy} of a gradient: the smallest power-of-two loss scale above the present one (`factor`) at which
- * both profiles (`start`, `end`: after that factor; `same` when one distribution) are within the limit, searched within
- * `headroom` (the worse side's) less the headroom the check asks for.
- */
-export function liftRemedy(
-  start: MagnitudeProfile,
-  end: MagnitudeProfile,
-  same: boolean,
-  factor: number,
-  headroom: number,
-  limits: RangeLimits,
-  limit: number,
-  t: Pick<RiskThresholds, "headroomAtRisk">,
-): string {
-  const most = Math.floor(headroom - t.headroomAtRisk);
-  // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
-  const lift = smallestStep(most, (j) => {
-    const step = 2 ** j;
-    if (!noiseAtMost(riskProfile(start, step), limits, limit)) return false;
-    return same || noiseAtMost(riskProfile(end, step), limits, limit);
-  });
-  if (lift === null) return noLiftRemedy(t);
-  return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
-}
-
-/**
- * {@link subnormalRemedy} where it needs no search: a probability row, scale factors, a tensor that is not a gradient;
- * null for a gradient, whose remedy is a loss scale searched within its headroom.
- */
-export function plainRemedy(
-  tensor: Pick<TensorPrediction, "role">,
-  limits: RangeLimits,
-  options: Pick<TensorRiskOptions, "perTensorScaling" | "blockScaling">,
-  row: boolean,
-): string | null {
-  if (row) return "; keeping the probabilities in a format with more range (bfloat16) would keep them normal";
-  if (options.perTensorScaling) {
-    return options.blockScaling
-      ? "; its elements span more binades than the format's normal range holds under one scale per block: a wider format would keep them"
-      : `; its elements span more binades than ${limits.format}'s normal range below the per-tensor scale: per-block scale factors or a wider format would keep them`;
-  }
-  if (!isGradientRole(tensor.role)) {
-    return FORMATS[limits.format].bits === 8
-      ? "; per-tensor scale factors (scaling: tensor) or a format with a wider normal range would keep them normal"
-      : "; a larger scale of this tensor (its initialisation, a norm's gain) or a format with a wider normal range (bfloat16) would keep them normal";
-  }
-  return null;
-}
-
-/** {@link subnormalRemedy} of a gradient where no loss scale keeping the headroom asked for lifts its subnormal elements. */
-export function noLiftRemedy(t: Pick<RiskThresholds, "headroomAtRisk">): string {
-  return `; no loss scale that leaves it ${binades(t.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
 }
