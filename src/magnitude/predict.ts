@@ -60,6 +60,39 @@ interface PhaseResult {
   hazards: HazardSite[];
   /** the last weight profiles made, which the end pass reuses where its weights are the start's (check's prediction only) */
   weights: WeightProfiles | undefined;
+  /** the start pass's forward, which the end pass takes as its own where the two are the same (see {@link SameForward}) */
+  forward: SameForward | undefined;
+}
+
+/**
+ * The start pass's forward as the end pass would compute it again: with weight growth 1 every weight has the same
+ * variance at both ends (a zero-initialised bias drifts by (growth − 1)·rms = 0; prepareWeights), and the forward rules
+ * of these families read nothing else of the phase (a residual block's rule does: none there), so the end pass's
+ * forward tensors and sites would get profiles of the very numbers of the start's. Only for check's own prediction
+ * ({@link predictForCheck}), whose start and end profiles may be one object, as its weights' already are; {@link
+ * predict} gives each its own. The end pass starts from the start's stashes and output at the loss.
+ */
+interface SameForward {
+  /** tensors and sites the forward made (the network's input first), which the end pass leaves at their start profiles */
+  tensors: number;
+  sites: number;
+  output: Signal;
+  /** every layer's stash, which the start's backward then leaves in place (its rules read a stash, never write it) */
+  stash: unknown[];
+}
+
+/** Families whose forward rule is the same at both ends of the horizon when the weights do not grow (see SameForward). */
+const SAME_FORWARD: ReadonlySet<string> = new Set(["dense", "activation", "conv2d", "batch-norm", "max-pool", "average-pool", "flatten", "dropout"]);
+
+/** Whether check's prediction of this network can take the start's forward for the end's ({@link SameForward}). */
+function sameForward(graph: Graph, spec: NetworkSpec): boolean {
+  if (spec.training.horizon.weightGrowth !== 1) return false;
+  const layers = graph.layers;
+  for (let i = 0; i < layers.length; i++) {
+    const layer = layers[i] as GraphLayer;
+    if (layer.branch !== undefined || !SAME_FORWARD.has(layer.family)) return false;
+  }
+  return true;
 }
 
 /**
@@ -144,8 +177,10 @@ class Phase {
   /** sites completed so far by the end pass */
   private sited = 0;
 
-  /** each layer's stash by layer index */
-  readonly stash: unknown[] = [];
+  /** each layer's stash by layer index (the start's, where the end pass takes its forward: see SameForward) */
+  stash: unknown[] = [];
+  /** whether the backward walk leaves each stash in place, for an end pass that takes this forward (see SameForward) */
+  keepStash = false;
   readonly ctx: OpContext;
   private readonly endVariance = new Map<GraphWeight, number>();
   /** the profile a backward sum made of the gradient at its layer's input, for that gradient's tensor (see backward) */
@@ -263,6 +298,24 @@ class Phase {
 
   private disagree(a: PredictedTensor | undefined, layer: string): never {
     throw new RangeError(`internal: start and end passes disagree at tensor ${a?.id ?? layer}`);
+  }
+
+  /**
+   * The end pass's forward where it is the start's ({@link SameForward}): the forward tensors keep their start profile
+   * as their end, each forward site's end is its start profiles, and the backward starts from the start's stashes.
+   */
+  takeForward(forward: SameForward): Signal {
+    const layers = this.graph.layers;
+    for (let i = 0; i < layers.length; i++) this.prepareWeights(layers[i] as GraphLayer);
+    const hazards = this.hazards;
+    for (let i = 0; i < forward.sites; i++) {
+      const site = hazards[i] as HazardSite;
+      site.end = { input: site.input, output: site.output };
+    }
+    this.emitted = forward.tensors;
+    this.sited = forward.sites;
+    this.stash = forward.stash;
+    return forward.output;
   }
 
   /** Throws unless the end pass met every tensor and every site of the start pass. */
@@ -467,7 +520,7 @@ class Phase {
       this.made = undefined;
       const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // nothing reads a layer's stash after its backward rule: let it go, so a collection during the pass copies less
-      this.stash[layer.index] = undefined;
+      if (!this.keepStash) this.stash[layer.index] = undefined;
       const input = result.input;
       if (input !== undefined) tidyGradient(layer, input, gradient);
       const inner = result.inner;
@@ -739,17 +792,8 @@ function lossValueMoments(value: number, W: number): { q: number; zeroFraction: 
   return { q: value * value * Math.exp(2 * W), zeroFraction: 0, shape: "constant", logVar: 4 * W };
 }
 
-/** Run one phase: forward, loss, backward. */
-function runPhase(
-  graph: Graph,
-  spec: NetworkSpec,
-  phase: "start" | "end",
-  build: boolean,
-  lossScale: number,
-  start?: PhaseResult,
-  source: LedgerSource | null = null,
-): PhaseResult {
-  const p = new Phase(graph, spec, phase, build, lossScale, start?.tensors, source, start?.hazards, start?.weights);
+/** The network's input tensor and the forward walk: the output at the loss. */
+function forwardPass(p: Phase, graph: Graph, spec: NetworkSpec, build: boolean): Signal {
   const ledger = p.ledger;
   const input = spec.input;
   let signal: Signal;
@@ -776,7 +820,30 @@ function runPhase(
       node,
     );
   }
-  const forward = p.forward(graph.layers, signal, node);
+  return p.forward(graph.layers, signal, node).output;
+}
+
+/** Run one phase: forward, loss, backward. */
+function runPhase(
+  graph: Graph,
+  spec: NetworkSpec,
+  phase: "start" | "end",
+  build: boolean,
+  lossScale: number,
+  start?: PhaseResult,
+  source: LedgerSource | null = null,
+): PhaseResult {
+  const p = new Phase(graph, spec, phase, build, lossScale, start?.tensors, source, start?.hazards, start?.weights);
+  const ledger = p.ledger;
+  const taken = phase === "end" ? start?.forward : undefined;
+  let same: SameForward | undefined;
+  let output: Signal;
+  if (taken !== undefined) output = p.takeForward(taken);
+  else {
+    p.keepStash = phase === "start" && source !== null && !source.own && sameForward(graph, spec);
+    output = forwardPass(p, graph, spec, build);
+    if (p.keepStash) same = { tensors: p.tensors.length, sites: p.hazards.length, output, stash: p.stash };
+  }
 
   const training = spec.training;
   const last = graph.layers[graph.layers.length - 1] as GraphLayer;
@@ -784,7 +851,7 @@ function runPhase(
   const positions = graph.output.layout === "image" ? sampleElements(graph.output) / width : positionCount(graph.output);
   const seed = lossSeed(
     training.loss,
-    forward.output,
+    output,
     graph.batch,
     positions,
     width,
@@ -850,7 +917,7 @@ function runPhase(
   }
   p.backward(graph.layers, seed.gradient, seedNode, true, true);
   p.finish();
-  return { tensors: p.tensors, hazards: p.hazards, weights: p.weightProfiles };
+  return { tensors: p.tensors, hazards: p.hazards, weights: p.weightProfiles, forward: same };
 }
 
 function assumptions(spec: NetworkSpec, graph: Graph): string[] {

@@ -116,6 +116,30 @@ describe("the prediction lists every tensor once", () => {
     }
   });
 
+  test("the prediction check keeps, with weight growth 1 (its end pass takes the start's forward): the same numbers as predict's two passes", () => {
+    // the reference is predict, whose end pass walks the forward again: with no weight growth the two must agree to
+    // the bit, and the forward tensors' end profiles are then the start's very objects in check's prediction alone
+    const cnn = parseSpec(readFileSync("specs/cnn-batchnorm.yaml", "utf8"), "specs/cnn-batchnorm.yaml").spec;
+    const stack = makeSpec([dense("d0", 48, he, true), act("a0"), dropout("drop", 0.1), dense("d1", 32, he, true), act("a1", "tanh"), dense("head", 8)], {
+      input: features(24),
+      loss: mse(1, "sum"),
+      ...training({ workers: 2, accumulationSteps: 3, horizon: { steps: 1000, weightGrowth: 1, finalLoss: 0.3 } }),
+    });
+    for (const spec of [cnn, stack]) {
+      expect(spec.training.horizon.weightGrowth).toBe(1);
+      const built = buildGraph(spec);
+      if (!built.ok) throw new Error("does not build");
+      const returned = predict(built.graph, spec);
+      const kept = predictForCheck(built.graph, spec);
+      expect(JSON.stringify(kept.hazards)).toBe(JSON.stringify(returned.hazards));
+      expect(JSON.stringify(kept.tensors)).toBe(JSON.stringify(returned.tensors, (key, value: unknown) => (key === "ledger" ? undefined : value)));
+      const forward = kept.tensors.filter((t) => t.role === "activation" || t.role === "pre-activation");
+      expect(forward.length).toBeGreaterThan(3);
+      for (const t of forward) expect(t.end, t.id).toBe(t.start);
+      for (const t of returned.tensors) if (t.role !== "weight") expect(t.end, t.id).not.toBe(t.start);
+    }
+  });
+
   test("ledgers survive a spread copy and JSON", () => {
     const t = tensor(run(smallTransformer()), "blocks.2.mlp.ff/activation:product");
     const copy = { ...t, source: "measured" as const };
