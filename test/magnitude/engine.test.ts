@@ -119,7 +119,9 @@ describe("the prediction lists every tensor once", () => {
   test("the prediction check keeps, with weight growth 1 (its end pass takes the start's forward): the same numbers as predict's two passes", () => {
     // the reference is predict, whose end pass walks the forward again: with no weight growth the two must agree to
     // the bit, and the forward tensors' end profiles are then the start's very objects in check's prediction alone
-    const cnn = parseSpec(readFileSync("specs/cnn-batchnorm.yaml", "utf8"), "specs/cnn-batchnorm.yaml").spec;
+    const parsed = parseSpec(readFileSync("specs/cnn-batchnorm.yaml", "utf8"), "specs/cnn-batchnorm.yaml");
+    if (!parsed.ok) throw new Error("cnn-batchnorm does not parse");
+    const cnn = parsed.spec;
     const stack = makeSpec([dense("d0", 48, he, true), act("a0"), dropout("drop", 0.1), dense("d1", 32, he, true), act("a1", "tanh"), dense("head", 8)], {
       input: features(24),
       loss: mse(1, "sum"),
