@@ -409,11 +409,34 @@ export function backwardSumHazard(details: boolean, products: Gradient, terms: n
   };
 }
 
-// the wording makers hold only the numbers they print (see dense/analytic.ts)
+/**
+ * Words that depend on a name and a count alone, made once for a run of calls with the same pair: a stack of like
+ * layers gives every site of a kind the same words, where a closure per site made a string of its own for each.
+ */
+export class Words {
+  private name = "";
+  private count = NaN;
+  private text = "";
+
+  constructor(private readonly make: (name: string, count: number) => string) {}
+
+  of(name: string, count: number): string {
+    if (name !== this.name || count !== this.count) {
+      this.text = this.make(name, count);
+      this.name = name;
+      this.count = count;
+    }
+    return this.text;
+  }
+}
+
+const WEIGHT_SUM_WORDS = new Words((makes, terms) => `${makes}: ${terms} products of input and gradient (batch × positions of one micro-batch) summed`);
+const TRANSPOSED_WORDS = new Words((what, terms) => `${what}: backward products summed over ${terms} terms per gradient element`);
+
 function weightSumWords(makes: string, terms: number): Text {
-  return () => `${makes}: ${terms} products of input and gradient (batch × positions of one micro-batch) summed`;
+  return WEIGHT_SUM_WORDS.of(makes, terms);
 }
 
 function transposedWords(what: string, terms: number): Text {
-  return () => `${what}: backward products summed over ${terms} terms per gradient element`;
+  return TRANSPOSED_WORDS.of(what, terms);
 }

@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, Words } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -261,31 +261,35 @@ export function linearBackward(
     const fanIn = weightOf(layer, "weight").fanIn;
     weightSum = weightSum * (1 - 1 / fanIn) + output.homogeneousSum / (fanIn * fanIn * variance);
   }
-  const weightGradients: WeightGradientMoment[] = [
-    {
-      weight: "weight",
-      q: weightSum + aligned,
-      alignedQ: aligned,
-      betweenQ: betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross),
-      coherentQ: terms * terms * x.q * output.q,
-      terms,
-      zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
-      logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements),
-      rule: ctx.ledger ? weightSumRule(terms) : "",
-    },
-  ];
-  if (bias !== undefined) {
+  const weightMoment: WeightGradientMoment = {
+    weight: "weight",
+    q: weightSum + aligned,
+    alignedQ: aligned,
+    betweenQ: betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross),
+    coherentQ: terms * terms * x.q * output.q,
+    terms,
+    zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
+    logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements),
+    rule: ctx.ledger ? weightSumRule(terms) : "",
+  };
+  let weightGradients: WeightGradientMoment[];
+  if (bias === undefined) weightGradients = [weightMoment];
+  else {
     const biasSum = correlatedSum(ctx.batch, positions, output.q, dSample, dPosition, dCross);
-    weightGradients.push({
-      weight: "bias",
-      q: biasSum,
-      betweenQ: betweenBatches(ctx.batch, positions, output.q, dSample, dCross),
-      coherentQ: terms * terms * output.q,
-      terms,
-      zeroFraction: deltaZero,
-      logVar: sumLogVarOf(output, biasSum, terms * output.q, bias.elements),
-      rule: ctx.ledger ? biasSumRule(terms) : "",
-    });
+    // one list of its final length (a push grew the list's store on every layer of both passes)
+    weightGradients = [
+      weightMoment,
+      {
+        weight: "bias",
+        q: biasSum,
+        betweenQ: betweenBatches(ctx.batch, positions, output.q, dSample, dCross),
+        coherentQ: terms * terms * output.q,
+        terms,
+        zeroFraction: deltaZero,
+        logVar: sumLogVarOf(output, biasSum, terms * output.q, bias.elements),
+        rule: ctx.ledger ? biasSumRule(terms) : "",
+      },
+    ];
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
   if (layer.family === "dense" && positions > 1) transposedUnitSpread(input, output, inWidth, gradientPairs(ctx.batch, positions, positions, weightOf(layer, "weight").fanOut, output, true), true);
@@ -385,8 +389,10 @@ function linearForwardRule(kind: string, gain: number, biasVariance: number): Te
   return () => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
 }
 
+const ACCUMULATION_WORDS = new Words((kind, fanIn) => `${kind} products summed over ${fanIn} inputs per output`);
+
 function accumulationDetail(kind: string, fanIn: number): Text {
-  return () => `${kind} products summed over ${fanIn} inputs per output`;
+  return ACCUMULATION_WORDS.of(kind, fanIn);
 }
 
 function weightSumRule(terms: number): Text {
