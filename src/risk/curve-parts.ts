@@ -5,8 +5,8 @@
  */
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { ProfileDrawBounds } from "./bounds.js";
-import { sameDistribution } from "./profile.js";
-import { GRADIENT_ROLES, riskProfile } from "./tensor.js";
+import { riskProfile, sameDistribution } from "./profile.js";
+import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
 /** What a gradient tensor's loss-scale curves are computed from: its start and end profiles (one object when alike). */

@@ -257,30 +257,16 @@ function overflowAndNoise(
   words: boolean,
 ): Finding[] | null {
   const t = d.thresholds;
-  const limits = d.limits;
-  const first = d.start;
-  const last = same ? first : d.end;
-  if (first.count === 0 || last.count === 0) return null;
-  const startNoise = settledNoise(first, limits);
-  const endNoise = same ? startNoise : settledNoise(last, limits);
-  const noise = Math.max(startNoise, endNoise);
-  if (!(noise > d.noiseLimit)) return null;
-  // one distribution: both sides' numbers are one object, whose flushed energy ties at the start (worseOf)
-  if (!same && startNoise === endNoise) return null;
-  const noiseAt = endNoise > startNoise ? "end" : "start";
-  let remedy = words ? plainRemedy(tensor, limits, UNSCALED, false) : "";
-  if (remedy === null) {
-    // a gradient's remedy is the smallest loss scale within its headroom less headroomAtRisk binades that lifts the
-    // noise: none where its headroom is under 1 + headroomAtRisk (subnormalRemedy). A side passing the overflow level
-    // (at least maxFinite) with probability 1/2 per step has its predicted max (passed with probability maxQuantile, at
-    // most 1/2: the same any-above law, src/risk/profile.ts) above that level, so a headroom below 0
-    if (!(t.headroomAtRisk >= 0 && t.maxQuantile <= 0.5 && worst >= 0.5)) return null;
-    remedy = noLiftRemedy(t);
-  }
-  const side = noiseAt === "start" ? first : last;
-  const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
-  FOUND[0] = overflowRiskFinding(tensor.id, limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
-  FOUND[1] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, words);
+  // a gradient's remedy is the smallest loss scale within its headroom less headroomAtRisk binades that lifts the
+  // noise: none where its headroom is under 1 + headroomAtRisk (subnormalRemedy). A side passing the overflow level
+  // (at least maxFinite) with probability 1/2 per step has its predicted max (passed with probability maxQuantile, at
+  // most 1/2: the same any-above law, src/risk/profile.ts) above that level, so a headroom below 0
+  const noise = noiseFinding(tensor, d, same, words, () =>
+    t.headroomAtRisk >= 0 && t.maxQuantile <= 0.5 && worst >= 0.5 ? noLiftRemedy(t) : null,
+  );
+  if (noise === null) return null;
+  FOUND[0] = overflowRiskFinding(tensor.id, d.limits, severity, worst, severity === "fails" ? t.overflowFails : d.atRisk, at);
+  FOUND[1] = noise;
   return FOUND.slice(0, 2);
 }
 
@@ -294,6 +280,32 @@ function overflowAndNoise(
 function noiseAlone(tensor: TensorPrediction, d: FormatDecision, same: boolean, factor: number, words: boolean): Finding[] | null {
   const t = d.thresholds;
   const limits = d.limits;
+  const noise = noiseFinding(tensor, d, same, words, (first, last) => {
+    const start = first.profile as MagnitudeProfile;
+    const end = last.profile as MagnitudeProfile;
+    const startHeadroom = Math.log2(limits.maxFinite / profileStatistics(start, t).max);
+    const headroom = same ? startHeadroom : Math.min(startHeadroom, Math.log2(limits.maxFinite / profileStatistics(end, t).max));
+    return liftRemedy(start, end, same, factor, headroom, limits, d.noiseLimit, t);
+  });
+  if (noise === null) return null;
+  FOUND[0] = noise;
+  return FOUND.slice(0, 1);
+}
+
+/**
+ * The subnormal noise's finding of a tensor whose noise is past its limit on some side, as tensorFindings words it;
+ * null where it is within the limit on both sides, where the two sides' noise ties (told apart by the flushed energy,
+ * from the numbers), or where a gradient's remedy needs more of the numbers (`gradientRemedy` null: a gradient's
+ * remedy, for which plainRemedy has none). The noise of each side is settledRisk's, by the same calls.
+ */
+function noiseFinding(
+  tensor: TensorPrediction,
+  d: FormatDecision,
+  same: boolean,
+  words: boolean,
+  gradientRemedy: (first: Side, last: Side) => string | null,
+): Finding | null {
+  const limits = d.limits;
   const first = d.start;
   const last = same ? first : d.end;
   if (first.count === 0 || last.count === 0) return null;
@@ -301,20 +313,14 @@ function noiseAlone(tensor: TensorPrediction, d: FormatDecision, same: boolean, 
   const endNoise = same ? startNoise : settledNoise(last, limits);
   const noise = Math.max(startNoise, endNoise);
   if (!(noise > d.noiseLimit)) return null;
+  // one distribution: both sides' numbers are one object, whose flushed energy ties at the start (worseOf)
   if (!same && startNoise === endNoise) return null;
   const noiseAt = endNoise > startNoise ? "end" : "start";
-  let remedy = words ? plainRemedy(tensor, limits, UNSCALED, false) : "";
-  if (remedy === null) {
-    const start = first.profile as MagnitudeProfile;
-    const end = last.profile as MagnitudeProfile;
-    const startHeadroom = Math.log2(limits.maxFinite / profileStatistics(start, t).max);
-    const headroom = same ? startHeadroom : Math.min(startHeadroom, Math.log2(limits.maxFinite / profileStatistics(end, t).max));
-    remedy = liftRemedy(start, end, same, factor, headroom, limits, d.noiseLimit, t);
-  }
+  const remedy = (words ? plainRemedy(tensor, limits, UNSCALED, false) : "") ?? gradientRemedy(first, last);
+  if (remedy === null) return null;
   const side = noiseAt === "start" ? first : last;
   const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
-  FOUND[0] = subnormalFinding(tensor.id, limits, t, d.noiseLimit, noise, noiseAt, fraction, remedy, words);
-  return FOUND.slice(0, 1);
+  return subnormalFinding(tensor.id, limits, d.thresholds, d.noiseLimit, noise, noiseAt, fraction, remedy, words);
 }
 
 // settledRisk's subnormal noise of a non-empty side: 0 where its share of subnormal elements is 0 and its flushed share

@@ -21,14 +21,13 @@ import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
-import { rangeLimits, sameDistribution } from "./profile.js";
+import { rangeLimits, riskProfile, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
   isProbabilityRow,
   LOSS_SCALED_ROLES,
   lossScaleFactor,
   overflowAtRiskThreshold,
-  riskProfile,
   scaledTensor,
   scaledTensorRisk,
   worstVerdict,

@@ -375,3 +375,23 @@ export function scaleProfile(profile: MagnitudeProfile, factor: number): Magnitu
   if (profile.bound !== undefined) scaled.bound = profile.bound * factor;
   return scaled;
 }
+
+/**
+ * The profile times a factor, as {@link scaleProfile} makes it, with only the fields the risk numbers read
+ * (those {@link sameDistribution} compares) in one fixed layout: every profile the risk functions see then has
+ * the same shape, whatever propagation fields the prediction carried.
+ */
+export function riskProfile(profile: MagnitudeProfile, factor = 1): MagnitudeProfile {
+  const bound = profile.bound;
+  // every key always present (undefined when the prediction has none), so the view has one layout
+  return {
+    elements: profile.elements,
+    zeroFraction: profile.zeroFraction,
+    shape: profile.shape,
+    rms: profile.rms * factor,
+    log2Spread: profile.log2Spread,
+    bound: bound === undefined ? undefined : bound * factor,
+    elementLog2Spread: profile.elementLog2Spread,
+    mixture: profile.mixture,
+  };
+}

@@ -6,6 +6,7 @@
 import { FORMATS } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
+import { riskProfile } from "./profile.js";
 import { noiseAtMost, smallestStep } from "./subnormal-noise.js";
 import type { TensorRiskOptions } from "./tensor.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -143,8 +144,8 @@ export function liftRemedy(
   // each step asks whether the noise is within the limit: a bound settles most without the noise itself (noiseAtMost)
   const lift = smallestStep(most, (j) => {
     const step = 2 ** j;
-    if (!noiseAtMost(stepped(start, step), limits, limit)) return false;
-    return same || noiseAtMost(stepped(end, step), limits, limit);
+    if (!noiseAtMost(riskProfile(start, step), limits, limit)) return false;
+    return same || noiseAtMost(riskProfile(end, step), limits, limit);
   });
   if (lift === null) return noLiftRemedy(t);
   return `; a loss scale of ${scaleWords(factor * 2 ** lift)} would bring it within the limit`;
@@ -177,19 +178,4 @@ export function plainRemedy(
 /** The subnormal remedy of a gradient where no loss scale keeping the headroom asked for lifts its subnormal elements. */
 export function noLiftRemedy(t: Pick<RiskThresholds, "headroomAtRisk">): string {
   return `; no loss scale that leaves it ${binades(t.headroomAtRisk)} of headroom would lift them, so a format with a wider normal range (bfloat16) would`;
-}
-
-// the profile times a factor, as src/risk/tensor.ts riskProfile makes it (its fields and their order)
-function stepped(profile: MagnitudeProfile, factor: number): MagnitudeProfile {
-  const bound = profile.bound;
-  return {
-    elements: profile.elements,
-    zeroFraction: profile.zeroFraction,
-    shape: profile.shape,
-    rms: profile.rms * factor,
-    log2Spread: profile.log2Spread,
-    bound: bound === undefined ? undefined : bound * factor,
-    elementLog2Spread: profile.elementLog2Spread,
-    mixture: profile.mixture,
-  };
 }

@@ -7,7 +7,7 @@ import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { CurveParts, curvePartsOf, gradientProfiles, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
-import { riskProfile } from "../risk/tensor.js";
+import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
 import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
 import { exp2 } from "../risk/_math.js";
