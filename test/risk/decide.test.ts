@@ -107,6 +107,15 @@ function thresholdsNear(tensor: TensorPrediction, limits: RangeLimits, base: Ten
   };
 }
 
+// role, format, log2 rms in binary16's subnormal band (smallest normal 2^-14; IEEE 754-2019 Table 3.5) and spread of
+// the noise tests' quiet side
+const NOISE_BAND = [
+  fc.constantFrom<TensorRole>("weight-gradient", "activation-gradient", "activation"),
+  fc.constantFrom(BINARY16, E5M2),
+  fc.double({ min: -19, max: -11, noNaN: true }),
+  fc.double({ min: 1, max: 3, noNaN: true }),
+] as const;
+
 describe("findings decided by bounds", () => {
   it("are the findings tensorFormatRisk gives from the numbers, wherever the bounds decide them", () => {
     let decided = 0;
@@ -196,10 +205,7 @@ describe("findings decided by bounds", () => {
     let both = 0;
     fc.assert(
       fc.property(
-        fc.constantFrom<TensorRole>("weight-gradient", "activation-gradient", "activation"),
-        fc.constantFrom(BINARY16, E5M2),
-        fc.double({ min: -19, max: -11, noNaN: true }),
-        fc.double({ min: 1, max: 3, noNaN: true }),
+        ...NOISE_BAND,
         fc.double({ min: 10, max: 24, noNaN: true }),
         fc.boolean(),
         (role, limits, low, spread, high, lowFirst) => {
@@ -227,10 +233,7 @@ describe("findings decided by bounds", () => {
     let lifted = 0;
     fc.assert(
       fc.property(
-        fc.constantFrom<TensorRole>("weight-gradient", "activation-gradient", "activation"),
-        fc.constantFrom(BINARY16, E5M2),
-        fc.double({ min: -19, max: -11, noNaN: true }),
-        fc.double({ min: 1, max: 3, noNaN: true }),
+        ...NOISE_BAND,
         fc.double({ min: -4, max: 8, noNaN: true }),
         fc.boolean(),
         (role, limits, low, spread, moved, same) => {
