@@ -143,7 +143,10 @@ export function check(spec: NetworkSpec, options: CheckAnswerOptions = {}, measu
   const atPicks = (): CheckOptions => (answers.length === 0 ? options : { ...options, lossScaleWindows: answers.map(windowSummary) });
   // where every window's centre surely leaves findings, its pick is weighed (and likely moves) before the one judgement
   // at the picks; else the judgement at the centres gives their findings to the weighing
-  const subjects = answers.some((a) => a.window.pickLog2 !== null) ? scaledSubjects(planned, prediction) : undefined;
+  // (a given scale is judged as it is: its centres' findings come from that judgement, and weighPick makes the scaled
+  // subjects only if it weighs)
+  const scaleGiven = options.lossScale !== undefined || plan.lossScale !== undefined;
+  const subjects = !scaleGiven && answers.some((a) => a.window.pickLog2 !== null) ? scaledSubjects(planned, prediction) : undefined;
   const first = subjects === undefined ? null : weighedFirst(planned, prediction, answers, subjects, formats, options);
   let judged: CheckResult;
   if (first !== null) {
@@ -271,8 +274,8 @@ function weighedAnswers(
 }
 
 /**
- * The answers weighed before any judgement, or null to weigh them after it (from its findings at the centres). Taken
- * when no scale is given (the judgement is then at the picks) and every window's centre surely leaves findings
+ * The answers weighed before any judgement, or null to weigh them after it (from its findings at the centres). Asked
+ * only when no scale is given (the judgement is then at the picks); taken where every window's centre surely leaves findings
  * (src/scale/pick.ts centreLeavesFindings): each is then weighed whatever, its centre counted here, and the pick most
  * often moves, so one judgement at the picks replaces the judgement at the centres and the gradients judged again at
  * the picks (the same result: judgePredictionAgain gives judgePrediction's). Where a centre leaves none, the judgement
@@ -286,7 +289,6 @@ function weighedFirst(
   formats: readonly FormatName[],
   options: CheckAnswerOptions,
 ): { answers: LossScaleAnswer[]; judged: { log2: number; result: CheckResult } | null } | null {
-  if (options.lossScale !== undefined || spec.precision.lossScale !== undefined) return null;
   for (const answer of answers) {
     if (answer.window.pickLog2 !== null && !centreLeavesFindings(subjects, answer.format, answer.window, options)) return null;
   }

@@ -411,9 +411,10 @@ export function backwardSumHazard(details: boolean, products: Gradient, terms: n
 
 /**
  * Words that depend on a name and a count alone, made once for a run of calls with the same pair: a stack of like
- * layers gives every site of a kind the same words, where a closure per site made a string of its own for each.
+ * layers gives every site of a kind the same words, where a closure per site made a string of its own for each. (The
+ * judgement's `Words`, src/risk/words.ts, keeps sentences by six keys; the layer rules sit below it and key by two.)
  */
-export class Words {
+export class CountWords {
   private name = "";
   private count = NaN;
   private text = "";
@@ -430,8 +431,8 @@ export class Words {
   }
 }
 
-const WEIGHT_SUM_WORDS = new Words((makes, terms) => `${makes}: ${terms} products of input and gradient (batch × positions of one micro-batch) summed`);
-const TRANSPOSED_WORDS = new Words((what, terms) => `${what}: backward products summed over ${terms} terms per gradient element`);
+const WEIGHT_SUM_WORDS = new CountWords((makes, terms) => `${makes}: ${terms} products of input and gradient (batch × positions of one micro-batch) summed`);
+const TRANSPOSED_WORDS = new CountWords((what, terms) => `${what}: backward products summed over ${terms} terms per gradient element`);
 
 function weightSumWords(makes: string, terms: number): Text {
   return WEIGHT_SUM_WORDS.of(makes, terms);

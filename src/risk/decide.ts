@@ -18,7 +18,7 @@ import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
 import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
-import { FOUND, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
+import { FOUND, isGradientRole, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
 // √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and
@@ -204,7 +204,7 @@ export function decidedFindings(
 ): Finding[] | null {
   const d = decision;
   const role = tensor.role;
-  const gradient = role === "activation-gradient" || role === "weight-gradient";
+  const gradient = isGradientRole(role);
   const first = d.start;
   const last = same ? first : d.end;
   if (!first.read(start)) return null;
@@ -457,7 +457,7 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
     }
   }
   const role = tensor.role;
-  if (role === "activation-gradient" || role === "weight-gradient") {
+  if (isGradientRole(role)) {
     const value = Math.max(energyPast(first, d), same ? -1 : energyPast(last, d));
     const energy = grade(value, t.energyAtRisk, t.energyFails);
     if (energy !== null) FOUND[found++] = counted(subject, d, "gradient-energy-flushed", energy, value, energy === "fails" ? t.energyFails : t.energyAtRisk);

@@ -4,7 +4,7 @@
  * them alike.
  */
 import { FORMATS } from "../formats/index.js";
-import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
+import type { MagnitudeProfile, TensorPrediction, TensorRole } from "../magnitude/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { riskProfile } from "./profile.js";
 import { noiseAtMost, smallestStep } from "./subnormal-noise.js";
@@ -167,12 +167,18 @@ export function plainRemedy(
       ? "; its elements span more binades than the format's normal range holds under one scale per block: a wider format would keep them"
       : `; its elements span more binades than ${limits.format}'s normal range below the per-tensor scale: per-block scale factors or a wider format would keep them`;
   }
-  if (tensor.role !== "activation-gradient" && tensor.role !== "weight-gradient") {
+  if (!isGradientRole(tensor.role)) {
     return FORMATS[limits.format].bits === 8
       ? "; per-tensor scale factors (scaling: tensor) or a format with a wider normal range would keep them normal"
       : "; a larger scale of this tensor (its initialisation, a norm's gain) or a format with a wider normal range (bfloat16) would keep them normal";
   }
   return null;
+}
+
+// membership in GRADIENT_ROLES and LOSS_SCALED_ROLES (src/risk/tensor.ts; the same two roles) by comparison: `includes`
+// is a loop that the per-tensor functions would carry into every TurboFan compile of them
+export function isGradientRole(role: TensorRole): boolean {
+  return role === "activation-gradient" || role === "weight-gradient";
 }
 
 /** The subnormal remedy of a gradient where no loss scale keeping the headroom asked for lifts its subnormal elements. */

@@ -23,7 +23,7 @@ import { subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { worseVerdict } from "./verdict-order.js";
 import { binades, percent, plainNumber, sentenceStart, when } from "./words.js";
-import { FOUND, liftRemedy, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
+import { FOUND, isGradientRole, liftRemedy, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import { normalCdf } from "./_math.js";
 
 /** Roles whose flushed elements are judged by the share of squared norm they carry. */
@@ -36,12 +36,6 @@ export const GRADIENT_ROLES: readonly TensorRole[] = ["activation-gradient", "we
  * tensor as well would count that one value twice.
  */
 export const LOSS_SCALED_ROLES: readonly TensorRole[] = ["activation-gradient", "weight-gradient"];
-
-// membership in GRADIENT_ROLES and LOSS_SCALED_ROLES (the same two roles) by comparison: `includes` is a loop that the
-// per-tensor functions would carry into every TurboFan compile of them
-function isGradientRole(role: TensorRole): boolean {
-  return role === "activation-gradient" || role === "weight-gradient";
-}
 
 /** A profile's risk numbers with the rounding noise its subnormal elements add. */
 export interface TensorProfileRisk extends ProfileRisk {

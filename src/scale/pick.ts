@@ -244,19 +244,14 @@ export function weighPick(
     for (const k of candidates) {
       // the pick is the fewest findings, then the least rank: the same whatever order the candidates are judged in
       if (findingsTotal(bestFindings) === 0 && rank(k) > rank(best)) continue;
-      if (rank(k) < rank(best)) {
-        // ranked before the best, it wins with as few findings: a count already worse than the best stops
-        const found = judge(k, (so) => fewerFindings(bestFindings, so));
-        if (fewerFindings(bestFindings, found)) continue;
-        best = k;
-        bestFindings = found;
-      } else {
-        // a count that is already no better than the best stops
-        const found = judge(k, (so) => !fewerFindings(so, bestFindings));
-        if (!fewerFindings(found, bestFindings)) continue;
-        best = k;
-        bestFindings = found;
-      }
+      // ranked before the best, it wins with as few findings (a count already worse than the best stops); else it needs
+      // fewer (a count already no better stops)
+      const before = rank(k) < rank(best);
+      const loses = (so: ScaledFindings) => (before ? fewerFindings(bestFindings, so) : !fewerFindings(so, bestFindings));
+      const found = judge(k, loses);
+      if (loses(found)) continue;
+      best = k;
+      bestFindings = found;
     }
   }
   if (!window.unscaledFits) return { pickLog2: best, weighing: { centreLog2: centre, atCentre: centreFindings, atPick: bestFindings } };

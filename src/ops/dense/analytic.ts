@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, Words } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -389,7 +389,7 @@ function linearForwardRule(kind: string, gain: number, biasVariance: number): Te
   return () => `${kind}: fan_in·var_w = ${fmt(gain)}${biasVariance > 0 ? ` (+ bias variance ${fmt(biasVariance)})` : ""}`;
 }
 
-const ACCUMULATION_WORDS = new Words((kind, fanIn) => `${kind} products summed over ${fanIn} inputs per output`);
+const ACCUMULATION_WORDS = new CountWords((kind, fanIn) => `${kind} products summed over ${fanIn} inputs per output`);
 
 function accumulationDetail(kind: string, fanIn: number): Text {
   return ACCUMULATION_WORDS.of(kind, fanIn);
