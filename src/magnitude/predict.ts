@@ -13,7 +13,7 @@ import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
 import type { LayerSpec, NetworkSpec } from "../spec/types.js";
 import { lossSeed, MIXED_ROWS } from "./loss.js";
-import { plainProfile, profileOf } from "./profile.js";
+import { medianFactor, plainProfile, profileOf } from "./profile.js";
 import { carriedMeanSquare, predictionRangeError } from "./range.js";
 import type {
   HazardKind,
@@ -190,8 +190,15 @@ class Phase {
     this.made = undefined;
     return made;
   }
-  /** the current layer's weight gradients and their per-micro-batch profiles, in pairs (see perMicroBatch) */
-  private readonly summed: (WeightGradientMoment | MagnitudeProfile)[] = [];
+  /**
+   * the current layer's weight gradients and their per-micro-batch profiles, in pairs (see perMicroBatch), the first
+   * `summedCount` entries: the list keeps its store from layer to layer (emptied by its length, it let the store go and
+   * grew a new one on every layer)
+   */
+  private readonly summed: (WeightGradientMoment | MagnitudeProfile | undefined)[] = [];
+  private summedCount = 0;
+  /** each layer's "<layer>/" by layer index, made by the forward walk (start pass only) */
+  private readonly prefixes: string[] = [];
 
   /** whether the start pass links its ledger nodes: only when a ledger is read ({@link LedgerSource}) */
   readonly ledger: boolean;
@@ -421,8 +428,9 @@ class Phase {
     let resets = false;
     for (let li = 0; li < layers.length; li++) {
       const layer = layers[li] as GraphLayer;
-      // "<layer>/", the start of every id of the layer (made once; the end pass makes no ids)
-      const prefix = this.build ? `${layer.name}/` : "";
+      // "<layer>/", the start of every id of the layer (made once, for the backward walk too; the end pass makes no ids)
+      let prefix = "";
+      if (this.build) this.prefixes[layer.index] = prefix = `${layer.name}/`;
       if (this.phase === "end") this.prepareWeights(layer);
       let branchResults: BranchResults = NO_BRANCH;
       if (layer.branch !== undefined) {
@@ -499,7 +507,7 @@ class Phase {
     this.made = undefined;
     for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
       const layer = layers[i] as GraphLayer;
-      const prefix = this.build ? `${layer.name}/` : "";
+      const prefix = this.build ? (this.prefixes[layer.index] ?? `${layer.name}/`) : "";
       const made = this.takeMade();
       if (!(seeded && i === layers.length - 1)) {
         const elements = this.graph.batch * sampleElements(layer.output);
@@ -535,7 +543,7 @@ class Phase {
         this.innerGradient(layer, prefix, one, current);
       }
       const weightGradients = result.weightGradients;
-      this.summed.length = 0;
+      this.summedCount = 0;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
       const hazards = result.hazards;
       if (hazards !== undefined) {
@@ -578,9 +586,14 @@ class Phase {
    */
   private perMicroBatch(wg: WeightGradientMoment, weight: GraphWeight): MagnitudeProfile {
     const summed = this.summed;
-    for (let k = 0; k < summed.length; k += 2) if (summed[k] === wg) return summed[k + 1] as MagnitudeProfile;
+    const count = this.summedCount;
+    for (let k = 0; k < count; k += 2) if (summed[k] === wg) return summed[k + 1] as MagnitudeProfile;
     const profile = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
-    summed.push(wg, profile);
+    if (count < summed.length) {
+      summed[count] = wg;
+      summed[count + 1] = profile;
+    } else summed.push(wg, profile);
+    this.summedCount = count + 2;
     return profile;
   }
 
@@ -608,7 +621,7 @@ class Phase {
     // for the rows an embedding leaves untouched; a lower bound for a ReLU unit, whose off-state persists across them)
     const profile = plainProfile(finalQ, Math.pow(wg.zeroFraction, A * W), "gaussian", wg.logVar, weight.elements);
     const keep = 1 - profile.zeroFraction;
-    profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * Math.exp(-Math.max(wg.logVar, 0) / 4) : 0;
+    profile.coherentRms = keep > 0 ? Math.sqrt(coherent / keep) * medianFactor(Math.max(wg.logVar, 0)) : 0;
     let id = "";
     let ledger: LedgerNode | null = null;
     if (this.build) {

@@ -103,17 +103,19 @@ export function widestLogNormalSpread(rms: number, bound: number | undefined, n:
 const GAUSSIAN_MAX_SLOTS = 256;
 const gaussianMaxKey = new Float64Array(GAUSSIAN_MAX_SLOTS).fill(-1);
 const gaussianMaxValue = new Float64Array(GAUSSIAN_MAX_SLOTS);
-let lastFractionalCount = NaN;
-let lastFractionalMax = 0;
+/** the last fractional count and its maximum, as raw doubles (module variables would box each one stored) */
+const LAST_FRACTIONAL = new Float64Array([NaN, 0]);
 
 function gaussianMaxOf(n: number): number {
   if (!(n >= 1 && n < 2147483648 && Number.isInteger(n))) {
     // a count scaled by a share of zeros is rarely met again, but a weight gradient's sum over micro-batches has its
     // per-micro-batch term's count, made right before it: the last such count is kept (the function's own value)
-    if (n === lastFractionalCount) return lastFractionalMax;
-    lastFractionalCount = n;
-    lastFractionalMax = expectedMaxAbsGaussian(n);
-    return lastFractionalMax;
+    const last = LAST_FRACTIONAL;
+    if (n === last[0]) return last[1] as number;
+    const max = expectedMaxAbsGaussian(n);
+    last[0] = n;
+    last[1] = max;
+    return max;
   }
   const slot = Math.imul(n, 0x9e3779b1) >>> 24;
   if (gaussianMaxKey[slot] === n) return gaussianMaxValue[slot] as number;
@@ -229,6 +231,33 @@ function rowScaled(base: OpMixture | undefined, rows: number, rowCount: number |
 let lastRowScaled: { base: OpMixture | undefined; field: OpMixture } | undefined;
 
 /**
+ * e^(−V/4), the median draw's factor on the rms at ln-variance V ≥ 0 (SCIENCE.md §2.6), for the last two V asked:
+ * profiles of one V come in runs (a weight gradient's combined, per-micro-batch and summed profiles and its coherent
+ * rms; a layer's output and the sum of the layer below that reads it), about half of a prediction's exponentials. The
+ * value kept is the very exponential, so results do not change.
+ */
+export function medianFactor(logVar: number): number {
+  const memo = MEDIAN_FACTORS;
+  if (logVar === memo[0]) return memo[1] as number;
+  if (logVar === memo[2]) {
+    const factor = memo[3] as number;
+    memo[2] = memo[0] as number;
+    memo[3] = memo[1] as number;
+    memo[0] = logVar;
+    memo[1] = factor;
+    return factor;
+  }
+  const factor = Math.exp(-logVar / 4);
+  memo[2] = memo[0] as number;
+  memo[3] = memo[1] as number;
+  memo[0] = logVar;
+  memo[1] = factor;
+  return factor;
+}
+/** the last V and its factor, then the one before: raw doubles (module variables would box each one stored) */
+const MEDIAN_FACTORS = new Float64Array([NaN, 1, NaN, 1]);
+
+/**
  * {@link profileOf} for moments with no bound, element spread, tail or shared parts (weights, weight gradients and
  * their sums, loss values): the same arithmetic, with no moments object to make and read.
  */
@@ -255,7 +284,7 @@ function profileFrom(
   const keep = 1 - zeroFraction;
   const logVar = Math.max(givenLogVar, 0);
   const meanRms = keep > 0 && q > 0 ? Math.sqrt(q / keep) : 0;
-  let rms = meanRms * Math.exp(-logVar / 4);
+  let rms = meanRms * medianFactor(logVar);
   if (bound !== undefined && rms > bound) rms = bound;
   let elementLog2Spread = givenSpread;
   if (shape === "log-normal" && elementLog2Spread !== undefined && elementLog2Spread > 0 && rms > 0) {

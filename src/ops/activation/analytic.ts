@@ -364,7 +364,7 @@ export function pointwiseForward(
   if (allOff > 0) output.allZero = allOff;
   // two features' covariance to first order: Cov(φ(u_i), φ(u_j)) = E[φ']²·Cov(u_i, u_j) (Price's theorem, Gaussian u);
   // the field holds its square over q², hence E[φ']⁴
-  if (input.featureCovariance !== undefined && q > 0) output.featureCovariance = (derivativeMean ** 4 * input.featureCovariance * input.q * input.q) / (q * q);
+  if (input.featureCovariance !== undefined && q > 0) output.featureCovariance = (fourthPower(derivativeMean) * input.featureCovariance * input.q * input.q) / (q * q);
   return {
     output,
     stash: {
@@ -383,6 +383,21 @@ export function pointwiseForward(
     rule: ctx.ledger ? forwardRule(name, qNonzero, input.q > 0 ? q / input.q : 0, input.gaussian) : "",
   };
 }
+
+/**
+ * x ** 4 for the last x asked: a stack's rectifiers have one E[φ'] (1/2 for ReLU on a dense layer's output), so most
+ * layers ask the same power again. The value kept is the very power, so results do not change.
+ */
+function fourthPower(x: number): number {
+  const memo = FOURTH_POWER;
+  if (x !== memo[0]) {
+    memo[0] = x;
+    memo[1] = x ** 4;
+  }
+  return memo[1] as number;
+}
+/** the last x and its power, as raw doubles (module variables would box each one stored) */
+const FOURTH_POWER = new Float64Array([NaN, NaN]);
 
 /**
  * Gradient.coupling below a pointwise unit. The output meets the spread of the transposed maps below only through the

@@ -118,12 +118,15 @@ function fisherDeviation(mean: number, excess: number, fan: number): number {
  * sample correlation, (1 − c'²)²/n (Fisher 1915), so E[c''²] = E[c'²] + (1 − E[c'²])²/n to leading order.
  */
 function batchSpread(output: Signal, input: Signal, batch: number, a: number, b: number, s: number): void {
-  const width = output.fresh?.width ?? 1;
+  const fresh = output.fresh;
+  const width = fresh?.width ?? 1;
   const rho = input.q > 0 ? Math.min(Math.max(sharedOf(input) / input.q, -1), 1) : 0;
   const mapped = Math.min(Math.max(a * a * s + 2 * a * b * rho + b * b, 0), 1);
   const D = batch > 1 ? 1 / batch + (1 - 1 / batch) * mapped : 1;
   output.logVar = input.logVar + (LINEAR_KAPPA * D) / width;
-  output.fresh = { width, kappa: LINEAR_KAPPA * D };
+  // linearOutput's own record, made for this output alone: its κ set in place
+  if (fresh !== undefined) fresh.kappa = LINEAR_KAPPA * D;
+  else output.fresh = { width, kappa: LINEAR_KAPPA * D };
   output.correlationSquare = fisherSquare(mapped, width);
   // the batch mean of each unit, w·x̄ + b, is one Gaussian: its square keeps Var/E² = 2 per unit, D = 1
   output.sharedLogVar = (input.sharedLogVar ?? input.logVar) + LINEAR_KAPPA / width;
@@ -165,7 +168,10 @@ function backwardBatchSpread(input: Gradient, output: Gradient, batch: number, w
   const D = batch > 1 ? 1 / batch + (1 - 1 / batch) * s : 1;
   const own = (LINEAR_KAPPA * D) / width;
   input.logVar = output.logVar + own;
-  input.fresh = { width, kappa: LINEAR_KAPPA * D };
+  // linearGradient's own record, made for this gradient alone: its κ set in place
+  const fresh = input.fresh;
+  if (fresh !== undefined && fresh.width === width && fresh.unit === undefined) fresh.kappa = LINEAR_KAPPA * D;
+  else input.fresh = { width, kappa: LINEAR_KAPPA * D };
   input.cosineSquare = fisherSquare(s, width);
   const coupling = output.coupling;
   if (coupling !== undefined) {
