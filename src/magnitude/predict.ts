@@ -197,6 +197,12 @@ class Phase {
    */
   private readonly summed: (WeightGradientMoment | MagnitudeProfile | undefined)[] = [];
   private summedCount = 0;
+  /**
+   * the current layer's weight gradients and their tensor ids, in pairs, the first `idCount` entries (start pass only):
+   * a backward sum that makes one names its tensor by the very id string, not a copy of it
+   */
+  private readonly gradientIds: (WeightGradientMoment | string | undefined)[] = [];
+  private idCount = 0;
   /** each layer's "<layer>/" by layer index, made by the forward walk (start pass only) */
   private readonly prefixes: string[] = [];
 
@@ -544,6 +550,7 @@ class Phase {
       }
       const weightGradients = result.weightGradients;
       this.summedCount = 0;
+      this.idCount = 0;
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
       const hazards = result.hazards;
       if (hazards !== undefined) {
@@ -626,6 +633,13 @@ class Phase {
     let ledger: LedgerNode | null = null;
     if (this.build) {
       id = wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`;
+      const ids = this.gradientIds;
+      const count = this.idCount;
+      if (count < ids.length) {
+        ids[count] = wg;
+        ids[count + 1] = id;
+      } else ids.push(wg, id);
+      this.idCount = count + 2;
       if (this.ledger) ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight-gradient", "gradients", weight.shape, profile, ledger);
@@ -659,6 +673,8 @@ class Phase {
     const makes = h.makes ?? "input";
     if (atInput && makes === "input") return;
     let output: MagnitudeProfile | undefined;
+    // the weight gradient this sum makes, whose tensor id it takes
+    let of: WeightGradientMoment | undefined;
     if (h.output !== undefined) {
       output = profileOf(h.output, h.outputElements ?? h.inputElements);
       if (makes === "input" && h.output === made) this.made = { of: made, profile: output };
@@ -667,12 +683,23 @@ class Phase {
       const weight = maybeWeight(layer, name);
       for (let k = 0; k < weightGradients.length && weight !== undefined; k++) {
         const wg = weightGradients[k] as WeightGradientMoment;
-        if (wg.weight === name) output = this.perMicroBatch(wg, weight);
+        if (wg.weight === name) {
+          output = this.perMicroBatch(wg, weight);
+          of = wg;
+        }
       }
     }
     const input = profileOf(h.input, h.inputElements);
     if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, output, true);
-    this.opSite(layer, h, input, output, this.build && makes !== "input" ? prefix + makes : undefined, true);
+    this.opSite(layer, h, input, output, this.build && makes !== "input" ? (this.gradientId(of) ?? prefix + makes) : undefined, true);
+  }
+
+  /** The id weightGradient gave this layer's weight gradient `wg` (the same words as prefix + makes), if it made one. */
+  private gradientId(wg: WeightGradientMoment | undefined): string | undefined {
+    if (wg === undefined) return undefined;
+    const ids = this.gradientIds;
+    for (let k = 0; k < this.idCount; k += 2) if (ids[k] === wg) return ids[k + 1] as string;
+    return undefined;
   }
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
