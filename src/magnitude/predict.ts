@@ -5,7 +5,7 @@
  * weight gradients as sums over batch and positions, the finite-width spread, and element maxima.
  */
 import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
-import type { Graph, GraphLayer, GraphWeight } from "../graph/types.js";
+import type { Graph, GraphLayer, GraphWeight, SampleShape } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
 import { fmt, initSource, maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic.js";
@@ -360,10 +360,21 @@ class Phase {
     site.end = { input, output };
   }
 
-  /** A layer's batch-first output shape (none in the end pass, whose records report no shape). */
+  /**
+   * A layer's batch-first output shape (none in the end pass, whose records report no shape). In check's own prediction
+   * (which nothing edits: see {@link WeightProfiles}) a run of tensors of one shape shares the last array made, as its
+   * weights share their graph weight's: a stack of like layers (2,000 arrays per 1,000-layer prediction, kept with it)
+   */
   outputShape(layer: GraphLayer): number[] {
-    return this.build ? batchShape(this.graph.batch, layer.output) : NO_SHAPE;
+    if (!this.build) return NO_SHAPE;
+    if (this.weightProfiles === undefined) return batchShape(this.graph.batch, layer.output);
+    const last = this.lastShape;
+    if (last !== undefined && isBatchShape(last, this.graph.batch, layer.output)) return last;
+    const shape = batchShape(this.graph.batch, layer.output);
+    this.lastShape = shape;
+    return shape;
   }
+  private lastShape: number[] | undefined = undefined;
 
   /** `output`, `profile`, `elements`: a tensor's moments and the profile already made of them, for a site that shares them. */
   hazard(layer: GraphLayer, h: OpHazard, output?: Signal, profile?: MagnitudeProfile, elements?: number): void {
@@ -721,6 +732,19 @@ class Phase {
       gradient: undefined,
       statistics: undefined,
     });
+  }
+}
+
+/** Whether `shape` is batchShape(batch, sample), element by element. */
+function isBatchShape(shape: readonly number[], batch: number, sample: SampleShape): boolean {
+  if (shape[0] !== batch) return false;
+  switch (sample.layout) {
+    case "tokens":
+      return shape.length === 2 && shape[1] === sample.positions;
+    case "features":
+      return sample.positions === 1 ? shape.length === 2 && shape[1] === sample.features : shape.length === 3 && shape[1] === sample.positions && shape[2] === sample.features;
+    case "image":
+      return shape.length === 4 && shape[1] === sample.channels && shape[2] === sample.height && shape[3] === sample.width;
   }
 }
 
