@@ -214,7 +214,10 @@ export function positionCorrelationOf(s: Signal | Gradient): number {
 
 /** Correlation between two samples at two different positions, same feature; the sample correlation when unset. */
 export function crossCorrelationOf(s: Signal | Gradient): number {
-  return "crossCorrelation" in s && s.crossCorrelation !== undefined ? clampCorrelation(s.crossCorrelation) : sampleCorrelationOf(s);
+  // a signal has no such field: reading it gives undefined, as for a gradient without one (a load, where `in` looked the
+  // key up on each of the many object shapes met here)
+  const cross = (s as { crossCorrelation?: number }).crossCorrelation;
+  return cross !== undefined ? clampCorrelation(cross) : sampleCorrelationOf(s);
 }
 
 /**
