@@ -133,10 +133,10 @@ export function lossScaleWindows(
     shared = { search: earlier, shift: flushLike.shift };
   }
   const search = new WindowSearch(tensors, o, shared);
-  // each id's tensors, made on the first set aside: a remedy sets aside a few tensors, looked up instead of testing
-  // every tensor against the set (an id's first tensor, then each tensor's next of the same id, −1 after the last)
-  let firstOf: Map<string, number> | undefined;
-  let nextOf: Int32Array | undefined;
+  // each id set aside, its tensors: found by comparing the few ids set aside with every tensor's, kept for the next set
+  // (a remedy sets aside a few tensors, adding one at a time; a map of every id would hash all of them, most never
+  // asked for)
+  const indicesOf = new Map<string, number[]>();
   // each set aside's window, by its ids sorted: the remedies try the setters of both edges, often the same tensors
   // (the search is exact for a set, so a window found once is the window)
   const found = new Map<string, ScaleWindow>();
@@ -147,17 +147,15 @@ export function lossScaleWindows(
     if (known !== undefined) return { ...known };
     active.fill(1);
     if (setAside !== undefined && setAside.size > 0) {
-      if (firstOf === undefined || nextOf === undefined) {
-        firstOf = new Map();
-        nextOf = new Int32Array(tensors.length).fill(-1);
-        for (let i = tensors.length - 1; i >= 0; i--) {
-          const id = (tensors[i] as ScaledTensorCurves).id;
-          const after = firstOf.get(id);
-          if (after !== undefined) nextOf[i] = after;
-          firstOf.set(id, i);
+      for (const id of setAside) {
+        let indices = indicesOf.get(id);
+        if (indices === undefined) {
+          indices = [];
+          for (let i = 0; i < tensors.length; i++) if ((tensors[i] as ScaledTensorCurves).id === id) indices.push(i);
+          indicesOf.set(id, indices);
         }
+        for (let j = 0; j < indices.length; j++) active[indices[j] as number] = 0;
       }
-      for (const id of setAside) for (let i = firstOf.get(id) ?? -1; i >= 0; i = nextOf[i] as number) active[i] = 0;
     }
     const window = search.window(active);
     found.set(key, window);
@@ -256,6 +254,10 @@ class WindowSearch {
   // computed once
   private powerBase = 0;
   private readonly powers = new Float64Array(POWERS).fill(NaN);
+  // per tensor its guess of its own overflow edge, and 1 where it has guesses: read by every window instead of each
+  // curve's guesses
+  private readonly overflowGuesses: Float64Array;
+  private readonly guessed: Uint8Array;
   // the tensors most likely to overflow first (lowest own overflow edge), and those most likely to flush (highest own
   // flush edge): the searches decide sooner when the tensors that decide are integrated first
   private readonly overflowOrder: number[];
@@ -305,6 +307,14 @@ class WindowSearch {
         if (this.powerBase === 0) this.powerBase = g;
       }
     }
+    this.overflowGuesses = new Float64Array(this.n);
+    this.guessed = new Uint8Array(this.n);
+    for (let i = 0; i < this.n; i++) {
+      const guesses = (tensors[i] as ScaledTensorCurves).edgeGuessesLog2;
+      if (guesses === undefined) continue;
+      this.overflowGuesses[i] = guesses.overflow;
+      this.guessed[i] = 1;
+    }
     this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
     this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
     this.overflowRank = new Int32Array(this.n);
@@ -341,10 +351,9 @@ class WindowSearch {
     // the window's overflow edge is at or below every tensor's own: start from the tightest guess (any start gives
     // the same edge; a good one saves steps)
     let overflowGuess = Infinity;
-    for (let i = 0; i < this.n; i++) {
-      const t = this.tensors[i] as ScaledTensorCurves;
-      if (active[i] === 1 && t.edgeGuessesLog2 !== undefined) overflowGuess = Math.min(overflowGuess, t.edgeGuessesLog2.overflow);
-    }
+    const guesses = this.overflowGuesses;
+    const guessed = this.guessed;
+    for (let i = 0; i < this.n; i++) if (active[i] === 1 && guessed[i] === 1) overflowGuess = Math.min(overflowGuess, guesses[i] as number);
     const middle = Math.round((o.lowestLog2 + o.highestLog2) / 2);
     // highest k with the union bound within the budget (monotone: true then false as k grows)
     // (over the budget is shown by a few tensors' lower bounds, within it only by every tensor's upper bound: the
@@ -869,9 +878,30 @@ class WindowSearch {
     // is beaten when its bound is below the floor, or only reaches a floor held by a tensor before it
     let holder = -1;
     const order = curve === "overflow" ? this.overflowOrder : this.flushOrder;
-    for (let r = 0; r < n; r++) {
-      const i = order[r] as number;
-      if (active[i] === 0) continue;
+    // the overflow curve's tensor whose rougher bound here is highest is visited first: those bounds follow the values
+    // closely enough that a value near the largest is found at once, and beats most of the others by their tighter
+    // bounds (in priority order alone, tensors of nearly equal values met in rising order were each integrated in
+    // turn); any order finds the same tensor. The rougher (or cheap) bounds are taken as the visit below takes them.
+    let seed = -1;
+    if (curve === "overflow") {
+      for (let i = 0; i < n; i++) {
+        if (active[i] === 0 || !((highs[i] as number) > floor)) continue;
+        const flags = table.flags[i] as number;
+        if ((flags & (HAS_VALUE | HAS_BOUNDS)) === 0) {
+          this.roughFirst(k, i, table);
+          this.cheapBounds(curve, i, table);
+        } else if ((flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0) this.takeRough(k, i, table);
+        if (((table.flags[i] as number) & HAS_VALUE) === 0) {
+          if ((table.data[4 * i + 1] as number) < (highs[i] as number)) highs[i] = table.data[4 * i + 1] as number;
+          if ((table.data[4 * i] as number) > floor) floor = table.data[4 * i] as number;
+        }
+        if (seed < 0 || (highs[i] as number) > (highs[seed] as number)) seed = i;
+      }
+      if (seed >= 0 && !((highs[seed] as number) >= floor)) seed = -1;
+    }
+    for (let r = seed < 0 ? 0 : -1; r < n; r++) {
+      const i = r < 0 ? seed : (order[r] as number);
+      if (active[i] === 0 || (r >= 0 && i === seed)) continue;
       if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
       if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0) {
         // bounded from another exponent only: the rougher or the cheap bounds here first
