@@ -220,6 +220,24 @@ class ShiftLevelTable {
     return base;
   }
 
+  // per profile (2i start, 2i + 1 end) the moments of the grid counts below and above its count (enclosureMoments),
+  // made on first use
+  private below: (LevelMoments | undefined)[] | undefined;
+  private above: (LevelMoments | undefined)[] | undefined;
+  momentsBelow(j: number, profile: MagnitudeProfile): LevelMoments {
+    const below = (this.below ??= new Array<LevelMoments | undefined>(this.bound.length));
+    const made = below[j];
+    if (made !== undefined) return made;
+    const moments = enclosureMoments(profile.elements * (1 - profile.zeroFraction));
+    below[j] = moments[0];
+    (this.above ??= new Array<LevelMoments | undefined>(this.bound.length))[j] = moments[1];
+    return moments[0];
+  }
+  // (after momentsBelow of the same profile)
+  momentsAbove(j: number): LevelMoments {
+    return this.above![j]!;
+  }
+
   private numbers(j: number, profile: MagnitudeProfile): void {
     this.rmsLog2[j] = Math.log2(profile.rms);
     this.spread[j] = profile.log2Spread;
@@ -351,6 +369,40 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     return PAIR[1]!;
   }
 
+  // The moment bounds with the remainder at its peak (overflow-enclosure.ts enclosureQuick) of the worse of the two
+  // profiles at k, as the dynamic simulation's first narrowing takes them: four normal tails and densities per profile
+  // in place of the tighter bounds' dozen or more; false where either profile has none (as anyAboveEnclosure: a
+  // Gaussian law of 16 elements or more, a positive rms and spread, t not past a bound)
+  overflowRiskQuickInto(k: number, into: Float64Array): boolean {
+    const t = this.limits.overflowLevel * pow2Below(k);
+    if (!(t > 0)) return false;
+    const tLog2 = Math.log2(t);
+    if (!this.quickOf(0, t, tLog2)) return false;
+    if (this.same) {
+      into[0] = QUICK[0]!;
+      into[1] = QUICK[1]!;
+      return true;
+    }
+    const low = QUICK[0]!;
+    const high = QUICK[1]!;
+    if (!this.quickOf(1, t, tLog2)) return false;
+    // the worse of two values lies between the larger of their lower bounds and the larger of their upper bounds
+    into[0] = Math.max(low, QUICK[0]!);
+    into[1] = Math.max(high, QUICK[1]!);
+    return true;
+  }
+
+  // side 0 the start profile, 1 the end: its quick moment bounds at t into QUICK (the same x = log2 t − log2 rms as
+  // anyAboveEnclosure's, from the level table's numbers of the profile)
+  private quickOf(side: number, t: number, tLog2: number): boolean {
+    this.levelsAt();
+    const table = this.levels;
+    const j = 2 * this.index + side;
+    if (table.applies[j] === 0 || t > table.bound[j]!) return false;
+    const below = table.momentsBelow(j, side === 0 ? this.start : this.end);
+    return enclosureQuick(below, table.momentsAbove(j), table.spread[j]!, tLog2 - table.rmsLog2[j]!, QUICK, 0);
+  }
+
   private flushUppers(k: number): void {
     const memo = this.memo;
     const m = this.m;
@@ -418,6 +470,8 @@ function growsAtMostEightfold(profile: MagnitudeProfile): boolean {
 }
 
 const PAIR = new Float64Array(2);
+// one profile's quick moment bounds (BoundedCurves.quickOf)
+const QUICK = new Float64Array(2);
 
 // 2^−k: exact from the formats' table of powers for a whole exponent (the curves are asked at a few exponents thousands
 // of times per answer, and a power with a variable exponent costs ~40 ns, Math.pow), the same double 2 ** -k gives

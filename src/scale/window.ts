@@ -36,6 +36,12 @@ export interface ScaledTensorCurves {
   /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
   overflowRiskLower?(log2Scale: number): number;
   /**
+   * optional bounds on overflowRisk into `into` at 0 (low) and 1 (high), false (nothing written) where the curve has
+   * none at this exponent: between the rougher bounds and overflowRiskUpper in cost and tightness, for the edge
+   * setter's scan (not kept: the other searches' bounds stay as they are)
+   */
+  overflowRiskQuickInto?(log2Scale: number, into: Float64Array): boolean;
+  /**
    * optional guesses of this tensor's own edges (the exponent where its overflow, and its flushing, reach the
    * limits): the searches start there and gallop, which finds the same edges in fewer steps than bisecting the
    * whole range
@@ -272,6 +278,8 @@ class WindowSearch {
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
   private readonly pair = new Float64Array(2);
+  // one tensor's bounds from overflowRiskQuickInto in the edge setter's scan
+  private readonly quick = new Float64Array(2);
   // the table of each curve last asked for
   private lastOverflow: Table | undefined;
   private lastFlush: Table | undefined;
@@ -920,6 +928,19 @@ class WindowSearch {
         const rough = this.takeRough(k, i, table);
         if (rough !== undefined && rough < (highs[i] as number)) highs[i] = rough;
         if ((highs[i] as number) < floor) continue;
+      }
+      if (curve === "overflow" && (highs[i] as number) > floor && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER)) === 0) {
+        // bounds between the rougher and the tighter in cost, where the curve has them: near the largest value they
+        // settle most tensors that the rougher bounds leave above it
+        const quick = this.quick;
+        if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick) === true) {
+          if ((quick[1] as number) < (highs[i] as number)) highs[i] = quick[1] as number;
+          if ((quick[0] as number) > floor) {
+            floor = quick[0] as number;
+            holder = -1;
+          }
+          if ((highs[i] as number) < floor) continue;
+        }
       }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
       if (u !== undefined && u < floor) continue;

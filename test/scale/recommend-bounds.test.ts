@@ -199,6 +199,25 @@ describe("boundedLossScaleCurves", () => {
     }
   });
 
+  it("give quick overflow bounds that hold the curves' own values, where the law has moment bounds", () => {
+    const plain = lossScaleCurves(tensors, limits);
+    const bounded = boundedLossScaleCurves(tensors, limits);
+    const into = new Float64Array(2);
+    let offered = 0;
+    // half-binade steps too, between the whole exponents the window asks for
+    for (let k = -40; k <= 64; k += 0.5) {
+      bounded.forEach((c, i) => {
+        if (!c.overflowRiskQuickInto!(k, into)) return;
+        offered++;
+        const value = plain[i]!.overflowRisk(k);
+        expect(into[0]).toBeLessThanOrEqual(value);
+        expect(into[1]).toBeGreaterThanOrEqual(value);
+      });
+    }
+    // the Gaussian-law tensors with a spread have them (half-Gaussian and bounded laws too: the moment bounds' laws)
+    expect(offered).toBeGreaterThan(100);
+  });
+
   it("give the window the plain curves give", () => {
     const plain = lossScaleWindow(lossScaleCurves(tensors, limits));
     expect(lossScaleWindow(boundedLossScaleCurves(tensors, limits))).toEqual(plain);
