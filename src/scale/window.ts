@@ -38,7 +38,7 @@ export interface ScaledTensorCurves {
   /**
    * optional bounds on overflowRisk into `into` at 0 (low) and 1 (high), false (nothing written) where the curve has
    * none at this exponent: between the rougher bounds and overflowRiskUpper in cost and tightness, for the edge
-   * setter's scan (not kept: the other searches' bounds stay as they are)
+   * setter's scan
    */
   overflowRiskQuickInto?(log2Scale: number, into: Float64Array): boolean;
   /**
@@ -213,6 +213,11 @@ const TOLERATED = 8;
 const HAS_BOUNDS = 16;
 // the curve's rougher upper bound was taken (kept as the cheap bounds' high where lower)
 const HAS_ROUGH = 32;
+// the curve's quick overflow bounds were taken (kept as the cheap bounds where tighter)
+const HAS_QUICK = 64;
+// the edge setter's scan takes the quick bounds of a tensor bounded above this (src/scale/recommend.ts: below it the
+// tighter upper bound is two normal tails, and the quick bounds cost four per profile)
+const QUICK_ABOVE = 1e-9;
 // a value or bound taken from another exponent is widened by this much (relative), for the rounding of two
 // evaluations of a curve that is monotone in exact arithmetic
 const ACROSS = 1e-9;
@@ -278,7 +283,7 @@ class WindowSearch {
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
   private readonly pair = new Float64Array(2);
-  // one tensor's bounds from overflowRiskQuickInto in the edge setter's scan
+  // one tensor's bounds from overflowRiskQuickInto (takeQuick)
   private readonly quick = new Float64Array(2);
   // the table of each curve last asked for
   private lastOverflow: Table | undefined;
@@ -843,6 +848,27 @@ class WindowSearch {
     return rough;
   }
 
+  // The curve's quick overflow bounds at k taken into the table as takeRough takes the rougher ones (marked as asked, the
+  // high lowered, the low raised), so that the later windows of these tensors read them; false when the curve has none
+  private takeQuick(k: number, i: number, table: Table): boolean {
+    const flags = table.flags[i] as number;
+    table.flags[i] = flags | HAS_QUICK;
+    const quick = this.quick;
+    if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick) !== true) return false;
+    const data = table.data;
+    if ((flags & HAS_BOUNDS) === 0) {
+      data[4 * i] = quick[0] as number;
+      data[4 * i + 1] = quick[1] as number;
+      table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
+      this.mark("overflow", table, i);
+    } else if ((quick[1] as number) < (data[4 * i + 1] as number) || (quick[0] as number) > (data[4 * i] as number)) {
+      if ((quick[1] as number) < (data[4 * i + 1] as number)) data[4 * i + 1] = quick[1] as number;
+      if ((quick[0] as number) > (data[4 * i] as number)) data[4 * i] = quick[0] as number;
+      this.mark("overflow", table, i);
+    }
+    return true;
+  }
+
   // the tighter upper bound at k; false when the curve has none
   private tighten(k: number, i: number, table: Table): boolean {
     this.state[i] = 1;
@@ -929,18 +955,16 @@ class WindowSearch {
         if (rough !== undefined && rough < (highs[i] as number)) highs[i] = rough;
         if ((highs[i] as number) < floor) continue;
       }
-      if (curve === "overflow" && (highs[i] as number) > floor && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER)) === 0) {
+      if (curve === "overflow" && (highs[i] as number) > floor && (highs[i] as number) > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table)) {
         // bounds between the rougher and the tighter in cost, where the curve has them: near the largest value they
-        // settle most tensors that the rougher bounds leave above it
-        const quick = this.quick;
-        if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick) === true) {
-          if ((quick[1] as number) < (highs[i] as number)) highs[i] = quick[1] as number;
-          if ((quick[0] as number) > floor) {
-            floor = quick[0] as number;
-            holder = -1;
-          }
-          if ((highs[i] as number) < floor) continue;
+        // settle most tensors that the rougher bounds leave above it (below QUICK_ABOVE the tighter bound is the
+        // shifted tails alone, cheaper still)
+        if ((table.data[4 * i + 1] as number) < (highs[i] as number)) highs[i] = table.data[4 * i + 1] as number;
+        if ((table.data[4 * i] as number) > floor) {
+          floor = table.data[4 * i] as number;
+          holder = -1;
         }
+        if ((highs[i] as number) < floor) continue;
       }
       const u = (highs[i] as number) > floor ? this.upper(curve, k, i, table) : undefined;
       if (u !== undefined && u < floor) continue;
