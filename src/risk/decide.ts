@@ -412,15 +412,15 @@ function noisePast(side: Side, d: FormatDecision): number {
 // Whether the side's flushed share, as worked out, is surely under `belowNormal` (the share below the smallest normal
 // as worked out), so that its subnormal share is positive without the flushed share: by the bound of belowCode at
 // half of what is left of `belowNormal` after FLUSHED_MARGIN. The bound holds the exact draw integral; a computed share
-// is within 2e-7 of it where rows serve it, and a positive-weight rule within a factor 2 of any segment's mass
-// elsewhere (src/risk/bounds.ts), both far inside that half and the margin.
+// is within 2e-7 of it where rows serve it, and within a few percent where the Simpson rule does (its ripple at
+// spreads past the rows, DEVELOPERS.md "Draw integrals"): far inside that factor 2 and the margin.
 function flushedFarUnder(side: Side, limits: RangeLimits, belowNormal: number): boolean {
   if (!(limits.flushBound < limits.minNormal) || !boundsHold(side, limits)) return false;
   const target = (belowNormal - FLUSHED_MARGIN) / 2;
   return target > 0 && capWithin(DENSITY * (limits.flushBound / side.rms), side.m, target);
 }
 // the absolute margin flushedFarUnder keeps under the share below the smallest normal: 1e-3, a hundred times the
-// coarsest accuracy README gives a share (1e-5, the Simpson rule near spread 2.5)
+// Simpson rule's error near spread 2.5 (1e-5, DEVELOPERS.md "Draw integrals")
 const FLUSHED_MARGIN = 1e-3;
 
 // grade of src/risk/tensor.ts: the severity a value passing its thresholds takes, null for none
