@@ -404,20 +404,33 @@ function noisePast(side: Side, d: FormatDecision): number {
   if (noise <= d.noiseLimit) return -1;
   settle(side, limits);
   if (side.settled) return noise;
+  // the subnormal share is positive where the flushed share, as worked out, is surely under the share below the
+  // smallest normal as worked out: by their bounds alone, else by the latter share itself
+  if (flushedFarUnder(side, limits, belowNormalAtLeast(side, limits))) return noise;
   const belowNormal = belowNormalShare(side, limits);
   if (flushedFarUnder(side, limits, belowNormal)) return noise;
   return Math.max(0, belowNormal - flushedShare(side, limits)) === 0 ? 0 : noise;
 }
 
-// Whether the side's flushed share, as worked out, is surely under `belowNormal` (the share below the smallest normal
-// as worked out), so that its subnormal share is positive without the flushed share: by the bound of belowCode at
-// half of what is left of `belowNormal` after FLUSHED_MARGIN. The bound holds the exact draw integral; a computed share
-// is within 2e-7 of it where rows serve it, and within a few percent where the Simpson rule does (its ripple at
-// spreads past the rows, DEVELOPERS.md "Draw integrals"): far inside that factor 2 and the margin.
-function flushedFarUnder(side: Side, limits: RangeLimits, belowNormal: number): boolean {
+// Whether the side's flushed share, as worked out, is surely under `below` (a number the share below the smallest
+// normal, as worked out, is at least), so that its subnormal share is positive without the flushed share: by the bound
+// of belowCode at half of what is left of `below` after FLUSHED_MARGIN. The bound holds the exact draw integral; a
+// computed share is within 2e-7 of it where rows serve it, and within a few percent where the Simpson rule does (its
+// ripple at spreads past the rows, DEVELOPERS.md "Draw integrals"): far inside that factor 2 and the margin.
+function flushedFarUnder(side: Side, limits: RangeLimits, below: number): boolean {
   if (!(limits.flushBound < limits.minNormal) || !boundsHold(side, limits)) return false;
-  const target = (belowNormal - FLUSHED_MARGIN) / 2;
+  const target = (below - FLUSHED_MARGIN) / 2;
   return target > 0 && capWithin(DENSITY * (limits.flushBound / side.rms), side.m, target);
+}
+
+// A number the side's share below the smallest normal, as worked out, is at least (0 where the Gaussian law does not
+// hold there): the share's integrand P(|x| ≤ h | r) = erf(h/(r√2)) falls with the draw z, so the integral is at least
+// Φ(0)·erf(h/(rms·√2)) = 1/2 − Q(h/rms), the draws z ≤ 0 at the value of z = 0; the computed share is at least half of
+// its integral less 2e-7 (the accuracies of flushedFarUnder)
+function belowNormalAtLeast(side: Side, limits: RangeLimits): number {
+  const h = limits.minNormal;
+  if (side.bound > 0 && !(h < side.bound)) return 0;
+  return (0.5 - normalSf(h / side.rms)) / 2 - 2e-7;
 }
 // the absolute margin flushedFarUnder keeps under the share below the smallest normal: 1e-3, a hundred times the
 // Simpson rule's error near spread 2.5 (1e-5, DEVELOPERS.md "Draw integrals")

@@ -322,6 +322,26 @@ describe("findings that are only counted", () => {
     );
   });
 
+  it("count a subnormal noise past its limit as the numbers give it, with its share of subnormal elements", () => {
+    // one side in the subnormal band of binary16 (smallest normal 2^-14; IEEE 754-2019 Table 3.5), the other moved by
+    // a few binades: the noise is counted where the share of subnormal elements is positive (settledRisk reports 0
+    // noise where it is 0), which the bounds decide without the shares where the flushed share lies far under it
+    let noisy = 0;
+    fc.assert(
+      fc.property(...NOISE_BAND, fc.double({ min: -4, max: 8, noNaN: true }), fc.boolean(), (role, limits, low, spread, moved, same) => {
+        const start: MagnitudeProfile = { elements: 65536, zeroFraction: 0, shape: "gaussian", rms: 2 ** low, log2Spread: spread };
+        const end = same ? start : riskProfile(start, 2 ** moved);
+        const tensor = { id: `dense-1/${role}`, layer: "dense-1", role, start, end } as unknown as TensorPrediction;
+        const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS, countOnly: true };
+        const found = counted(tensor, limits, DEFAULT_THRESHOLDS);
+        expect(found).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options).findings.map(countedPart));
+        if (found?.some((f) => f.kind === "subnormal-values") === true) noisy++;
+      }),
+      { numRuns: 600 },
+    );
+    expect(noisy).toBeGreaterThan(100);
+  });
+
   it("leave laws other than the Gaussian's to the numbers", () => {
     const uniform = { elements: 4096, zeroFraction: 0, shape: "uniform" as const, rms: 1, log2Spread: 0 };
     const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
@@ -330,6 +350,19 @@ describe("findings that are only counted", () => {
 });
 
 describe("the bounds", () => {
+  it("the share below a threshold h is at least 1/2 − Q(h/rms) (the draws z ≤ 0 at the value of z = 0)", () => {
+    // P(|x| ≤ h | r) = erf(h/(r·√2)) for a Gaussian magnitude of rms r = rms·2^(S·z) (Abramowitz & Stegun 7.1.1), over
+    // z ~ N(0, 1) by the fine quadrature; Q(a) = erfc(a/√2)/2
+    fc.assert(
+      fc.property(fc.double({ min: -12, max: 6, noNaN: true }), fc.double({ min: 0, max: 6, noNaN: true }), (log2A, spread) => {
+        const a = 2 ** log2A;
+        const share = fineMean((z) => 1 - erfc((a * 2 ** (-spread * z)) / Math.SQRT2));
+        expect(share).toBeGreaterThanOrEqual(0.5 - erfc(a / Math.SQRT2) / 2 - 1e-15);
+      }),
+      { numRuns: 400 },
+    );
+  });
+
   it("capWithin: E[min(1, c·e^(−m·z))] is at most the target wherever it says so", () => {
     fc.assert(
       fc.property(fc.double({ min: -40, max: 5, noNaN: true }), fc.double({ min: 0, max: 6, noNaN: true }), fc.double({ min: -12, max: 0, noNaN: true }), (log10C, m, log10Target) => {
