@@ -5,7 +5,7 @@
 import { FORMATS } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
-import { anyOf, LN2, normalSf } from "./_math.js";
+import { anyOf, exp2, LN2, normalSf } from "./_math.js";
 import { chiSquareTail } from "../numeric/chi-square.js";
 import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalLogPdf, normalSf as preciseNormalSf, normalUpperQuantile as preciseUpperQuantile } from "../numeric/normal.js";
@@ -850,8 +850,10 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
 // to 0 (Q(40) ≈ 4e-350, below the smallest double), so the draw sum is 0 without a closure or a sum, as the sum itself
 // would find it
 function sumFarBelow(profile: MagnitudeProfile, level: number, terms: number): boolean {
-  // the scale at the largest draw, a little high against the rounding of the rule's own factors
-  const top = profile.rms * 2 ** (Math.max(0, profile.log2Spread) * DRAW_LIMIT) * (1 + 1e-9);
+  // the scale at the largest draw, a little high against the rounding of the rule's own factors and of exp2's (within
+  // (|x| + 1)·2^-52 relative of `2 **`, src/risk/_math.ts: under 1e-13 for spreads to 100 binades); where the test could
+  // tell the two apart, the partial sums sit 40 standard deviations away and the sum gives 0 too
+  const top = profile.rms * exp2(Math.max(0, profile.log2Spread) * DRAW_LIMIT) * (1 + 1e-9);
   return level / (Math.sqrt(terms) * top) > 40;
 }
 
@@ -1212,9 +1214,15 @@ function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: num
   if (!(p > 0 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
   // shown for 2^k ≤ p (k = ⌊log2 p⌋), a stronger claim: z₀ and its numbers are then read off a table per binade of p
-  let k = Math.floor(Math.log2(p));
-  if (2 ** k > p) k--;
-  const at = -k * 3;
+  // (the binade of the last p kept: a count asks the same p of every site)
+  if (p !== atMostP) {
+    let k = Math.floor(Math.log2(p));
+    if (2 ** k > p) k--;
+    atMostP = p;
+    atMostAt = -k * 3;
+  }
+  const at = atMostAt;
+  const k = -at / 3;
   if (!(at < AT_MOST.length)) return false;
   if (AT_MOST[at] !== AT_MOST[at]) {
     // z₀ a little past the quantile of 2^k/2 (src/numeric's, exact to rounding after its Halley steps)
@@ -1227,8 +1235,17 @@ function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: num
   const u = (t / profile.rms) * Math.exp(-m * far);
   const rate = m * u * u - far;
   const below = rate > 0 ? Math.min(0, (AT_MOST[at + 1] as number) - Math.log(rate)) : 0;
-  return Math.log(n) - (u * u) / 2 + below <= (AT_MOST[at + 2] as number);
+  if (n !== atMostN) {
+    atMostN = n;
+    atMostLogN = Math.log(n);
+  }
+  return atMostLogN - (u * u) / 2 + below <= (AT_MOST[at + 2] as number);
 }
+// the last p and n anyAboveBounded was asked with, the row of p's binade and ln n
+let atMostP = Number.NaN;
+let atMostAt = 0;
+let atMostN = Number.NaN;
+let atMostLogN = Number.NaN;
 // per binade of p, 2^k for k = 0, −1, …, −99: z₀, ln φ(z₀) and ln(2^k/2), filled as asked (NaN until then)
 const AT_MOST = new Float64Array(300).fill(Number.NaN);
 
