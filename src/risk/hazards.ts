@@ -48,7 +48,7 @@ export interface HazardContext {
   /**
    * the findings are only counted (the loss-scale pick weighs scales by their kinds and severities): no sentences, and
    * the check keeps only the evaluations that do not fit (what a count reads of them: isConditionalFinding in judge.ts);
-   * an empty list is one shared frozen array
+   * an empty list is one shared frozen array, and the check itself a record the next count-only call writes over
    */
   countOnly?: boolean;
 }
@@ -301,6 +301,9 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
       else if (evaluation.layer === undefined) evaluation.layer = site.layer;
     }
   }
+  const evaluationList = counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount);
+  const findingList = counting && findingCount === 0 ? NONE : findings.slice(0, findingCount);
+  if (counting) return countedCheck(site, layer, input, origin, evaluationList, findingList);
   const check: HazardCheck = {
     kind: site.kind,
     layer,
@@ -309,11 +312,54 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
     terms: site.terms,
     input,
     origin,
-    evaluations: counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount),
-    findings: counting && findingCount === 0 ? NONE : findings.slice(0, findingCount),
+    evaluations: evaluationList,
+    findings: findingList,
   };
   if (keepConstant || site.constant !== undefined) check.constant = site.constant;
   if (site.gradient === true) check.gradient = true;
+  return check;
+}
+
+// A count's check (HazardContext.countOnly): one of two records written anew by each count-only call, in evaluateHazard's
+// layout (a count reads its lists and lets it go before the next site is judged: judge.ts judgeScaled), one without
+// `gradient` and one with it
+const COUNTED = countedRecord();
+const COUNTED_GRADIENT: HazardCheck = { ...countedRecord(), gradient: true };
+
+function countedRecord(): HazardCheck {
+  return {
+    kind: "accumulation",
+    layer: "",
+    detail: "",
+    guarded: false,
+    terms: 0.5,
+    input: { elements: 1.5, zeroFraction: 0.5, shape: "gaussian", rms: 1.5, log2Spread: 0.5 },
+    origin: "prediction",
+    evaluations: [],
+    findings: [],
+    constant: undefined,
+  };
+}
+
+function countedCheck(
+  site: HazardSite,
+  layer: string,
+  input: MagnitudeProfile,
+  origin: HazardCheck["origin"],
+  evaluations: HazardEvaluation[],
+  findings: Finding[],
+): HazardCheck {
+  const check = site.gradient === true ? COUNTED_GRADIENT : COUNTED;
+  check.kind = site.kind;
+  check.layer = layer;
+  check.detail = site.detail;
+  check.guarded = site.guarded;
+  check.terms = site.terms;
+  check.input = input;
+  check.origin = origin;
+  check.evaluations = evaluations;
+  check.findings = findings;
+  check.constant = site.constant;
   return check;
 }
 
