@@ -326,8 +326,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
 const COUNTED = countedRecord();
 const COUNTED_GRADIENT: HazardCheck = { ...countedRecord(), gradient: true };
 
-// (placeholders: the numbers fractional so that V8 gives those fields double storage from the start, as a site's will
-// need; every field is written before the record is returned)
+// (placeholders: the numbers fractional so that V8 gives those fields double storage from the start, and a site whose
+// numbers are fractional does not change the layout; every field is written before the record is returned)
 function countedRecord(): HazardCheck {
   return {
     kind: "accumulation",
