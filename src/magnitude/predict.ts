@@ -190,19 +190,13 @@ class Phase {
     this.made = undefined;
     return made;
   }
+  /** the current layer's weight gradients and their per-micro-batch profiles (see perMicroBatch) */
+  private readonly summed = new LayerPairs<WeightGradientMoment, MagnitudeProfile>();
   /**
-   * the current layer's weight gradients and their per-micro-batch profiles, in pairs (see perMicroBatch), the first
-   * `summedCount` entries: the list keeps its store from layer to layer (emptied by its length, it let the store go and
-   * grew a new one on every layer)
+   * the current layer's weight gradients and their tensor ids (start pass only): a backward sum that makes one names its
+   * tensor by the very id string, not a copy of it
    */
-  private readonly summed: (WeightGradientMoment | MagnitudeProfile | undefined)[] = [];
-  private summedCount = 0;
-  /**
-   * the current layer's weight gradients and their tensor ids, in pairs, the first `idCount` entries (start pass only):
-   * a backward sum that makes one names its tensor by the very id string, not a copy of it
-   */
-  private readonly gradientIds: (WeightGradientMoment | string | undefined)[] = [];
-  private idCount = 0;
+  private readonly gradientIds = new LayerPairs<WeightGradientMoment, string>();
   /** each layer's "<layer>/" by layer index, made by the forward walk (start pass only) */
   private readonly prefixes: string[] = [];
 
@@ -560,8 +554,8 @@ class Phase {
         this.innerGradient(layer, prefix, one, current);
       }
       const weightGradients = result.weightGradients;
-      this.summedCount = 0;
-      this.idCount = 0;
+      this.summed.clear();
+      this.gradientIds.clear();
       for (let k = 0; k < weightGradients.length; k++) this.weightGradient(layer, prefix, weightGradients[k] as WeightGradientMoment, current, gradient.q);
       const hazards = result.hazards;
       if (hazards !== undefined) {
@@ -603,15 +597,10 @@ class Phase {
    * take it (the gradient sum's terms, the sum over batch × positions' result).
    */
   private perMicroBatch(wg: WeightGradientMoment, weight: GraphWeight): MagnitudeProfile {
-    const summed = this.summed;
-    const count = this.summedCount;
-    for (let k = 0; k < count; k += 2) if (summed[k] === wg) return summed[k + 1] as MagnitudeProfile;
+    const made = this.summed.get(wg);
+    if (made !== undefined) return made;
     const profile = plainProfile(wg.q, wg.zeroFraction, "gaussian", wg.logVar, weight.elements);
-    if (count < summed.length) {
-      summed[count] = wg;
-      summed[count + 1] = profile;
-    } else summed.push(wg, profile);
-    this.summedCount = count + 2;
+    this.summed.add(wg, profile);
     return profile;
   }
 
@@ -644,13 +633,7 @@ class Phase {
     let ledger: LedgerNode | null = null;
     if (this.build) {
       id = wg.weight === "weight" ? `${prefix}weight-gradient` : `${prefix}weight-gradient:${wg.weight}`;
-      const ids = this.gradientIds;
-      const count = this.idCount;
-      if (count < ids.length) {
-        ids[count] = wg;
-        ids[count + 1] = id;
-      } else ids.push(wg, id);
-      this.idCount = count + 2;
+      this.gradientIds.add(wg, id);
       if (this.ledger) ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight-gradient", "gradients", weight.shape, profile, ledger);
@@ -703,16 +686,10 @@ class Phase {
     }
     const input = profileOf(h.input, h.inputElements);
     if (this.phase === "end") return this.siteEnd(h.kind, layer.name, input, output, true);
-    this.opSite(layer, h, input, output, this.build && makes !== "input" ? (this.gradientId(of) ?? prefix + makes) : undefined, true);
+    const madeId = of === undefined ? undefined : this.gradientIds.get(of);
+    this.opSite(layer, h, input, output, this.build && makes !== "input" ? (madeId ?? prefix + makes) : undefined, true);
   }
 
-  /** The id weightGradient gave this layer's weight gradient `wg` (the same words as prefix + makes), if it made one. */
-  private gradientId(wg: WeightGradientMoment | undefined): string | undefined {
-    if (wg === undefined) return undefined;
-    const ids = this.gradientIds;
-    for (let k = 0; k < this.idCount; k += 2) if (ids[k] === wg) return ids[k + 1] as string;
-    return undefined;
-  }
 
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
@@ -733,6 +710,35 @@ class Phase {
       gradient: undefined,
       statistics: undefined,
     });
+  }
+}
+
+/**
+ * A layer's few keys and what was made of them, found by identity: the list keeps its store from layer to layer (emptied
+ * by its length, a list let the store go and grew a new one on every layer).
+ */
+class LayerPairs<K, V> {
+  private readonly pairs: (K | V | undefined)[] = [];
+  private count = 0;
+
+  clear(): void {
+    this.count = 0;
+  }
+
+  get(key: K): V | undefined {
+    const pairs = this.pairs;
+    for (let k = 0; k < this.count; k += 2) if (pairs[k] === key) return pairs[k + 1] as V;
+    return undefined;
+  }
+
+  add(key: K, value: V): void {
+    const pairs = this.pairs;
+    const count = this.count;
+    if (count < pairs.length) {
+      pairs[count] = key;
+      pairs[count + 1] = value;
+    } else pairs.push(key, value);
+    this.count = count + 2;
   }
 }
 

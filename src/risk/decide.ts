@@ -173,7 +173,7 @@ function headroomDecided(side: Side, d: FormatDecision): boolean {
   if (side.count === 0) return true;
   const t = d.thresholds;
   if (anyAboveWithin(side, d.headroomLevel, t.maxQuantile / 2, d.headroomDraw, d.headroomFar)) return true;
-  return Math.log2(d.limits.maxFinite / profileStatistics(side.profile as MagnitudeProfile, t).max) >= t.headroomAtRisk;
+  return headroomOf(side, d) >= t.headroomAtRisk;
 }
 
 // The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
@@ -281,11 +281,9 @@ function noiseAlone(tensor: TensorPrediction, d: FormatDecision, same: boolean, 
   const t = d.thresholds;
   const limits = d.limits;
   const noise = noiseFinding(tensor, d, same, words, (first, last) => {
-    const start = first.profile as MagnitudeProfile;
-    const end = last.profile as MagnitudeProfile;
-    const startHeadroom = Math.log2(limits.maxFinite / profileStatistics(start, t).max);
-    const headroom = same ? startHeadroom : Math.min(startHeadroom, Math.log2(limits.maxFinite / profileStatistics(end, t).max));
-    return liftRemedy(start, end, same, factor, headroom, limits, d.noiseLimit, t);
+    const startHeadroom = headroomOf(first, d);
+    const headroom = same ? startHeadroom : Math.min(startHeadroom, headroomOf(last, d));
+    return liftRemedy(first.profile as MagnitudeProfile, last.profile as MagnitudeProfile, same, factor, headroom, limits, d.noiseLimit, t);
   });
   if (noise === null) return null;
   FOUND[0] = noise;

@@ -126,9 +126,9 @@ function limitWords(limits: RangeLimits, limit: number, atRisk: number): string 
 }
 
 /**
- * A gradient's subnormal remedy (src/risk/tensor.ts subnormalRemedy): the smallest power-of-two loss scale above the present one (`factor`) at which
- * both profiles (`start`, `end`: after that factor; `same` when one distribution) are within the limit, searched within
- * `headroom` (the worse side's) less the headroom the check asks for.
+ * A gradient's subnormal remedy (src/risk/tensor.ts subnormalRemedy): the smallest power-of-two loss scale above the
+ * present one (`factor`) at which both profiles (`start`, `end`: after that factor; `same` when one distribution) are
+ * within the limit, searched within `headroom` (the worse side's) less the headroom the check asks for.
  */
 export function liftRemedy(
   start: MagnitudeProfile,
@@ -152,8 +152,8 @@ export function liftRemedy(
 }
 
 /**
- * The subnormal remedy (src/risk/tensor.ts subnormalRemedy) where it needs no search: a probability row, scale factors, a tensor that is not a gradient;
- * null for a gradient, whose remedy is a loss scale searched within its headroom.
+ * The subnormal remedy (src/risk/tensor.ts subnormalRemedy) where it needs no search: a probability row, scale factors,
+ * a tensor that is not a gradient; null for a gradient, whose remedy is a loss scale searched within its headroom.
  */
 export function plainRemedy(
   tensor: Pick<TensorPrediction, "role">,
