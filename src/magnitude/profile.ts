@@ -295,76 +295,39 @@ function profileFrom(
   const maxElement = maxElementOf(shape, tail, elementLog2Spread, bound, rms, elements * keep, mixture);
   const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
   const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
-  return new Profile(
-    elements,
-    zeroFraction,
-    shape,
-    rms,
-    log2Spread,
-    q,
-    maxElement,
-    bound,
-    shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined,
-    shape === "gaussian-mixture" ? mixture : undefined,
-    sampleCorrelation,
-    positionCorrelation,
-  );
+  // a copy of one template, its fields then set in place: every key, absent ones undefined, in the order the JSON output
+  // has always had them, so every profile has one hidden class (keys added one by one would give each combination its
+  // own chain of classes) and JSON leaves the undefined keys out. Not a literal: V8 moves a literal whose objects outlive
+  // collections (a prediction's, kept for the whole check) to allocating them in the old generation, where each took
+  // several times a young allocation (about a tenth of predict's samples, its largest line); a copy is made young
+  const profile: MagnitudeProfile = { ...PROFILE_TEMPLATE };
+  profile.elements = elements;
+  profile.zeroFraction = zeroFraction;
+  profile.shape = shape;
+  profile.rms = rms;
+  profile.log2Spread = log2Spread;
+  profile.meanSquare = q;
+  profile.maxElement = maxElement;
+  profile.bound = bound;
+  profile.elementLog2Spread = shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined;
+  profile.mixture = shape === "gaussian-mixture" ? mixture : undefined;
+  profile.sampleCorrelation = sampleCorrelation;
+  profile.positionCorrelation = positionCorrelation;
+  return profile;
 }
 
-interface ProfileConstructor {
-  new (
-    elements: number,
-    zeroFraction: number,
-    shape: OpElementShape,
-    rms: number,
-    log2Spread: number,
-    meanSquare: number,
-    maxElement: number,
-    bound: number | undefined,
-    elementLog2Spread: number | undefined,
-    mixture: OpMixture | undefined,
-    sampleCorrelation: number | undefined,
-    positionCorrelation: number | undefined,
-  ): MagnitudeProfile;
-  prototype: object;
-}
-
-/**
- * A profile with every key, absent ones undefined, in the order the JSON output has always had them, so every profile
- * has one hidden class (keys added one by one would give each combination its own chain of classes) and JSON leaves the
- * undefined keys out. A constructor, not a literal: V8 moves a literal whose objects outlive collections (a prediction's,
- * kept for the whole check) to allocating them in the old generation, where each took several times a young allocation;
- * nor a copy of a template, which was a call into the object-copying builtin per profile (most of profileFrom's own
- * time), where a constructor's allocation is made inline and young. Its prototype is Object's, as a literal's: a
- * profile is a plain object to every reader (its `constructor` is Object, a structured clone or spread is the same).
- */
-const Profile = function (
-  this: MagnitudeProfile,
-  elements: number,
-  zeroFraction: number,
-  shape: OpElementShape,
-  rms: number,
-  log2Spread: number,
-  meanSquare: number,
-  maxElement: number,
-  bound: number | undefined,
-  elementLog2Spread: number | undefined,
-  mixture: OpMixture | undefined,
-  sampleCorrelation: number | undefined,
-  positionCorrelation: number | undefined,
-): void {
-  this.elements = elements;
-  this.zeroFraction = zeroFraction;
-  this.shape = shape;
-  this.rms = rms;
-  this.log2Spread = log2Spread;
-  this.meanSquare = meanSquare;
-  this.maxElement = maxElement;
-  this.bound = bound;
-  this.elementLog2Spread = elementLog2Spread;
-  this.mixture = mixture;
-  this.sampleCorrelation = sampleCorrelation;
-  this.positionCorrelation = positionCorrelation;
-  this.coherentRms = undefined;
-} as unknown as ProfileConstructor;
-Profile.prototype = Object.prototype;
+const PROFILE_TEMPLATE: MagnitudeProfile = {
+  elements: 0,
+  zeroFraction: 0,
+  shape: "gaussian",
+  rms: 0,
+  log2Spread: 0,
+  meanSquare: 0,
+  maxElement: 0,
+  bound: undefined,
+  elementLog2Spread: undefined,
+  mixture: undefined,
+  sampleCorrelation: undefined,
+  positionCorrelation: undefined,
+  coherentRms: undefined,
+};
