@@ -101,6 +101,9 @@ export class FormatDecision {
   readonly headroomLevel: number;
   readonly headroomDraw: number;
   readonly headroomFar: number;
+  /** the squared threshold unit past which each any-above bound holds without its exponentials (quickSquare) */
+  readonly overflowQuick: number;
+  readonly headroomQuick: number;
   readonly start = new Side();
   readonly end = new Side();
   /**
@@ -126,7 +129,23 @@ export class FormatDecision {
     this.headroomLevel = limits.maxFinite * 2 ** -(t.headroomAtRisk + HEADROOM_MARGIN);
     this.headroomDraw = normalUpperQuantile(t.maxQuantile / 4);
     this.headroomFar = normalSf(this.headroomDraw);
+    this.overflowQuick = quickSquare(this.finding / 2, this.overflowFar);
+    this.headroomQuick = quickSquare(t.maxQuantile / 2, this.headroomFar);
   }
+}
+
+// The most nonzero elements anyAboveWithin's quick test covers (a side with more takes the bound itself): 2^53
+const QUICK_COUNT = 2 ** 53;
+const LOG2E = Math.LOG2E;
+// 2^−k for k = 0 … 1000, exact (e^−x ≥ 2^−k wherever k ≥ x·log₂e; 2^−1000 is far above the smallest double)
+const POW2_NEG = Float64Array.from({ length: 1001 }, (_, k) => 2 ** -k);
+
+// The u² past which QUICK_COUNT·e^{−u²/2} is at most half of what `target` leaves above `far`, so that
+// far + n·e^{−u²/2} ≤ target for any n ≤ QUICK_COUNT, with room (a factor 2) for every rounding of the bound as
+// anyAboveWithin computes it; Infinity where the target leaves nothing above `far`
+function quickSquare(target: number, far: number): number {
+  const room = (target - far) / 2;
+  return room > 0 ? 2 * (Math.log(QUICK_COUNT) - Math.log(room)) : Infinity;
 }
 
 // What the shares below the flush bound decide of a side (belowCode): no finding can come from them; none but the
@@ -156,11 +175,20 @@ function belowCode(side: Side, d: FormatDecision, gradient: boolean): number {
 }
 
 // Whether the probability that some of the side's nonzero elements reach t in a step, over draws, is at most `target`,
-// by the bound at draw z₀ with Q(z₀) = far (settle.ts's farThreshold)
-function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: number): boolean {
+// by the bound at draw z₀ with Q(z₀) = far (settle.ts's farThreshold). Most sides sit so far under t that the bound
+// holds by orders of magnitude: it is first taken without its two exponentials, the threshold unit u = (t/rms)·e^{−m·z₀}
+// bounded below by (t/rms)·2^{−k}, k ≥ m·z₀·log₂e (one more for the rounding of the product), against `quick`
+// (quickSquare, its u² for this target): where that holds, so does the bound as computed below, so the answer is its.
+function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: number, quick: number): boolean {
   if (side.count === 0) return true;
   if (!(t > 0)) return false;
-  const u = farThreshold(t / side.rms, side.m, z0);
+  const a = t / side.rms;
+  const k = Math.ceil(side.m * z0 * LOG2E) + 1;
+  if (k >= 0 && k < POW2_NEG.length && side.count <= QUICK_COUNT) {
+    const low = a * (POW2_NEG[k] as number);
+    if (low * low >= quick) return true;
+  }
+  const u = farThreshold(a, side.m, z0);
   return far + side.count * Math.exp(-(u * u) / 2) <= target;
 }
 
@@ -172,14 +200,14 @@ function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: 
 function headroomDecided(side: Side, d: FormatDecision): boolean {
   if (side.count === 0) return true;
   const t = d.thresholds;
-  if (anyAboveWithin(side, d.headroomLevel, t.maxQuantile / 2, d.headroomDraw, d.headroomFar)) return true;
+  if (anyAboveWithin(side, d.headroomLevel, t.maxQuantile / 2, d.headroomDraw, d.headroomFar, d.headroomQuick)) return true;
   return headroomOf(side, d) >= t.headroomAtRisk;
 }
 
 // The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
 // as settledRisk gives it (the same call)
 function overflowDecided(side: Side, d: FormatDecision): number {
-  if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar)) return -1;
+  if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar, d.overflowQuick)) return -1;
   return side.count === 0 ? 0 : overflowRiskOf(side.profile as MagnitudeProfile, d.limits);
 }
 
