@@ -205,11 +205,28 @@ function headroomDecided(side: Side, d: FormatDecision): boolean {
 }
 
 // The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
-// as settledRisk gives it (the same call)
+// as settledRisk gives it (the same call, or its answer where surelySettledOne shows it)
 function overflowDecided(side: Side, d: FormatDecision): number {
   if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar, d.overflowQuick)) return -1;
-  return side.count === 0 ? 0 : overflowRiskOf(side.profile as MagnitudeProfile, d.limits);
+  if (side.count === 0) return 0;
+  return surelySettledOne(side, d.limits.overflowLevel) ? 1 : overflowRiskOf(side.profile as MagnitudeProfile, d.limits);
 }
+
+// Whether settle.ts's settledAnyAbove settles the probability that some of the side's nonzero elements reach t as 1, shown
+// without its logarithms and exponentials, for a side far past t even at its lowest draw: with n ≥ 64 elements and
+// a = t/rms < 7, its test for 0 cannot hold (ln n − high²/2 > −24.5, high ≤ a, against ln(SETTLED/4) = −31.3); with
+// a·e^{m·7.65} at most half of 0.3 (a·2^k ≤ 0.3, k ≥ m·7.65·log₂e + 1, as anyAboveWithin bounds the exponential), its
+// tail is at least ln(1 − √(2/π)·0.15) > −0.13, so ln n plus it is above ln 32 by far more than any rounding: settled 1.
+// The settle's own conditions are the side's: a Gaussian law (read) with no bound at or below t, and t > 0.
+function surelySettledOne(side: Side, t: number): boolean {
+  if (!(side.count >= 64) || !(t > 0) || (side.bound > 0 && !(t < side.bound))) return false;
+  const a = t / side.rms;
+  if (!(a < 7)) return false;
+  const k = Math.ceil(side.m * SETTLE_FAR_DRAW * LOG2E) + 1;
+  return k < POW2_NEG.length && a <= 0.3 * (POW2_NEG[k] as number);
+}
+// settle.ts's FAR_DRAW, the lowest draw its settle of an any-above probability as 1 reads
+const SETTLE_FAR_DRAW = 7.65;
 
 /**
  * The findings of a tensor judged in a format (as src/risk/tensor.ts's tensorFindings gives them from its numbers),
