@@ -143,6 +143,37 @@ describe("findings decided by bounds", () => {
     expect(undecided).toBeGreaterThan(20);
   });
 
+  it("give an overflow probability of 1 to a tensor far past the overflow level, as its law does", () => {
+    let fixedScale = 0;
+    fc.assert(
+      fc.property(
+        fc.double({ min: 30, max: 40, noNaN: true }),
+        fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 1, noNaN: true })),
+        fc.integer({ min: 64, max: 1 << 20 }),
+        fc.constantFrom<TensorRole>("activation", "weight-gradient"),
+        (log2Rms, spread, elements, role) => {
+          // binary16's overflow level 65520 = 2^16 − 2^4 (IEEE 754-2019 Table 3.5, round to nearest): the start fits, the
+          // end sits past it by more than 6 binades even at its lowest draw that matters (7.65 standard deviations down)
+          const start: MagnitudeProfile = { elements, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: spread };
+          const end: MagnitudeProfile = { ...start, rms: 2 ** log2Rms };
+          const tensor = { id: "dense-1/out", layer: "dense-1", role, start, end } as unknown as TensorPrediction;
+          const found = decidedFindings(tensor, start, end, false, new FormatDecision(BINARY16, DEFAULT_THRESHOLDS));
+          const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+          expect(found).toEqual(tensorFormatRisk(tensor, BINARY16, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options).findings);
+          expect(found?.[0]?.value).toBe(1);
+          if (spread === 0) {
+            // at a fixed scale n independent Gaussian magnitudes all stay under t with probability (1 − erfc(a/√2))^n,
+            // a = t/rms (A&S 26.2.29): 1 less that is 1 in binary64 this far past the level
+            fixedScale++;
+            expect(1 - (1 - erfc(BINARY16.overflowLevel / end.rms / Math.SQRT2)) ** elements).toBe(1);
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+    expect(fixedScale).toBeGreaterThan(50);
+  });
+
   it("are those findings where every threshold sits near the tensor's own numbers", () => {
     let decided = 0;
     fc.assert(
