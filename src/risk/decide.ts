@@ -15,7 +15,7 @@ import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
-import { capWithin, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
+import { capWithin, FAR_DRAW, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
 import { FOUND, isGradientRole, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
@@ -222,11 +222,9 @@ function surelySettledOne(side: Side, t: number): boolean {
   if (!(side.count >= 64) || !(t > 0) || (side.bound > 0 && !(t < side.bound))) return false;
   const a = t / side.rms;
   if (!(a < 7)) return false;
-  const k = Math.ceil(side.m * SETTLE_FAR_DRAW * LOG2E) + 1;
+  const k = Math.ceil(side.m * FAR_DRAW * LOG2E) + 1;
   return k < POW2_NEG.length && a <= 0.3 * (POW2_NEG[k] as number);
 }
-// settle.ts's FAR_DRAW, the lowest draw its settle of an any-above probability as 1 reads
-const SETTLE_FAR_DRAW = 7.65;
 
 /**
  * The findings of a tensor judged in a format (as src/risk/tensor.ts's tensorFindings gives them from its numbers),

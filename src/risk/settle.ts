@@ -27,7 +27,7 @@ export const UNSETTLED = -1;
 
 // The draw beyond which the draws carry less than SETTLED/4 of the mass, Q(7.65) = 1.0e-14: past it an integrand is
 // at most 1 (an upper bound) or at least 0 (a lower one).
-const FAR_DRAW = 7.65;
+export const FAR_DRAW = 7.65;
 const LOG_FAR_SHARE = Math.log(SETTLED / 4);
 const LOG_SETTLED = Math.log(SETTLED);
 // √(2/π): P(|Z| ≤ a) = erf(a/√2) ≤ √(2/π)·a, and E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3 (the density at most φ(0) = 1/√(2π)
