@@ -85,20 +85,31 @@ export function probabilityAnyAboveUpper(profile: MagnitudeProfile, t: number): 
  * Gaussian magnitude law at t (no bound at or below it) it is the closed form of src/risk/settle.ts instead, far
  * tighter and cheaper: per draw r the share is E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3 (the density at most φ(0)) and at most 1,
  * a = t/r = (t/rms)·e^{−S·ln2·z}, so over the draws it is at most E_z[min(1, c·e^{−3S·ln2·z})] (capMean: two normal
- * tails), times RULE_FACTOR for the rule that evaluates the integral, as the segments take it (within 1–1.3× of the
- * value before that factor on the 1,000-layer spec's gradients, where the segments were 5× to far above it).
+ * tails; within 1–1.3× of the share on the 1,000-layer spec's gradients, where the segments were 5× to far above it),
+ * widened for what evaluates the integral: a thousandth where the share tables or the series do, else RULE_FACTOR, as
+ * the segments take it.
  */
 export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
   if (isEmpty(profile) || isConstantLike(profile) || !(profile.log2Spread > 0)) return energyBelow(profile, t);
   const shape = profile.shape;
   const a = t / profile.rms;
   if ((shape === "gaussian" || shape === "half-gaussian") && a > 0 && a < Infinity && !(profile.bound !== undefined && profile.bound > 0 && !(t < profile.bound))) {
-    return Math.min(1, RULE_FACTOR * capMean(LOG_ENERGY_DENSITY + 3 * Math.log(a), 3 * profile.log2Spread * LN2));
+    const cap = capMean(LOG_ENERGY_DENSITY + 3 * Math.log(a), 3 * profile.log2Spread * LN2);
+    // where the share is at most a half and the spread one the share tables hold, the value is read off them (src/risk/
+    // laws.ts: interpolated in log share, within 2e-7 of the integral relative, test/risk/share-tables.test.ts) or taken
+    // from the small ratios' series (the integral itself): far less room than the rule's factor covers it
+    const tight = cap * (1 + TABLE_ROOM);
+    if (tight <= 0.5 && profile.log2Spread >= TABLE_SPREADS[0] && profile.log2Spread <= TABLE_SPREADS[1]) return tight;
+    return Math.min(1, RULE_FACTOR * cap);
   }
   return segmentBound(profile, false, elementLaw(profile), t, 0, false);
 }
 // ln(√(2/π)/3): E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3
 const LOG_ENERGY_DENSITY = Math.log(Math.sqrt(2 / Math.PI) / 3);
+// the spreads at which test/risk/share-tables.test.ts holds the tables to the integral, and the room left for their
+// error (5,000 times the 2e-7 relative they are held to)
+const TABLE_SPREADS = [0.25, 8] as const;
+const TABLE_ROOM = 1e-3;
 
 /**
  * The extreme-draw bounds above ({@link probabilityAnyAboveBounds}, and {@link energyBelowBounds} with their inner
