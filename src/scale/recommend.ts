@@ -13,7 +13,7 @@ import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
 import { exp2 } from "../risk/_math.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
-import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, FLUSH_GROWTH_ABSOLUTE, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
+import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
 import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
@@ -550,28 +550,6 @@ export function dynamicModel(
   // per tensor 1 when its flushed share at the lowest scale is within the tolerance at every point before the end, read
   // off its two ends once (flushWithinBeforeEnd): such tensors are never looked at again, nor their profiles made
   let within: Uint8Array | undefined;
-  // per tensor 1 where both ends' flushed shares grow at most FLUSH_GROWTH-fold per binade the scale falls (src/scale/
-  // window.ts flushedEnergyGrowth; every point between them has the start's law): made on first use
-  let grows: Uint8Array | undefined;
-  // The smallest scale, down to the lowest, at which a share known to be at most `share` at `scale` is still within
-  // the tolerance by that growth: flushedEnergy(k − d) ≤ g^d·flushedEnergy(k) + FLUSH_GROWTH_ABSOLUTE, widened as the
-  // window's search widens it (a cut scale meets the tensors it passed again, each a binade lower)
-  const toleratedDown = (i: number, scale: number, share: number): number => {
-    if (grows === undefined) {
-      grows = new Uint8Array(profiles.length);
-      for (let j = 0; j < profiles.length; j++) grows[j] = growsAtMostEightfold(profiles[j]!.start) && growsAtMostEightfold(profiles[j]!.end) ? 1 : 0;
-    }
-    if (grows[i] === 0) return scale;
-    const tolerance = options.flushTolerance;
-    let at = scale;
-    let grown = share;
-    while (at > lowestScale) {
-      grown *= FLUSH_GROWTH;
-      if (!(grown * (1 + 1e-9) + FLUSH_GROWTH_ABSOLUTE <= tolerance)) break;
-      at /= 2;
-    }
-    return at;
-  };
   // a profile scaled by S against a level is the profile against level/S (exact for the powers of two a dynamic
   // scale takes), without a scaled copy per scale
   return {
@@ -625,13 +603,8 @@ export function dynamicModel(
         draws.energyBelowInto(bound, FLUSHED, 0);
         const low = FLUSHED[0]!;
         const high = FLUSHED[1]!;
-        let share = high;
-        if (!(high <= tolerance)) {
-          if (low > tolerance) return true;
-          share = energyBelow(point.profile(i), bound);
-          if (share > tolerance) return true;
-        }
-        known.tolerated[i] = Math.min(known.tolerated[i]!, toleratedDown(i, scale, share));
+        if (!(high <= tolerance) && (low > tolerance || energyBelow(point.profile(i), bound) > tolerance)) return true;
+        known.tolerated[i] = Math.min(known.tolerated[i]!, scale);
       }
       return false;
     },
