@@ -94,7 +94,7 @@ export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
   const shape = profile.shape;
   const a = t / profile.rms;
   if ((shape === "gaussian" || shape === "half-gaussian") && a > 0 && a < Infinity && !(profile.bound !== undefined && profile.bound > 0 && !(t < profile.bound))) {
-    const cap = capMean(LOG_ENERGY_DENSITY + 3 * Math.log(a), 3 * profile.log2Spread * LN2);
+    const cap = capMeanFast(LOG_ENERGY_DENSITY + 3 * Math.log(a), 3 * profile.log2Spread * LN2);
     // where the share is at most a half and the spread one the share tables hold, the value is read off them (src/risk/
     // laws.ts: interpolated in log share, within 2e-7 of the integral relative, test/risk/share-tables.test.ts) or taken
     // from the small ratios' series (the integral itself): far less room than the rule's factor covers it
@@ -103,6 +103,14 @@ export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
     return Math.min(1, RULE_FACTOR * cap);
   }
   return segmentBound(profile, false, elementLaw(profile), t, 0, false);
+}
+// settle.ts capMean, E_z[min(1, c·e^{−m·z})] = Φ(z*) + c·e^{m²/2}·Q(z* + m) (z* = ln(c)/m), from the fast tails of
+// _math.ts (relative error below 1.2e-7 each, hence the 3e-7 of room) instead of the accurate tail and its logarithm:
+// the factor c·e^{m²/2} taken whole, and capMean itself where it overflows
+function capMeanFast(logC: number, m: number): number {
+  const crossing = logC / m;
+  const v = normalSf(-crossing) + Math.exp(logC + (m * m) / 2) * normalSf(crossing + m);
+  return v < Infinity ? v * (1 + 3e-7) : capMean(logC, m);
 }
 // ln(√(2/π)/3): E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3
 const LOG_ENERGY_DENSITY = Math.log(Math.sqrt(2 / Math.PI) / 3);
