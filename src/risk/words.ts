@@ -15,11 +15,11 @@ export function plainNumber(x: number): string {
   const e = digitsExponent;
   // n·10^(e−2) written from its digits, trailing zeros dropped: the shortest form of the double nearest it, which
   // is what String(Number(x.toPrecision(3))) gives (no shorter decimal rounds to that double)
-  if (!plain) return `${sign}${MANTISSA[n]}e${e}`;
+  if (!plain) return sign + (MANTISSA[n] as string) + (EXPONENTS[e + EXPONENT_OFFSET] as string);
   if (e >= 2) return sign + String(n * (POW10[e - 2] as number));
   if (e === 1) return sign + (TENTHS[n] as string);
   if (e === 0) return sign + (MANTISSA[n] as string);
-  return `${sign}0.${"0".repeat(-e - 1)}${STRIPPED[n]}`;
+  return sign + (-e < FRACTION_HEADS.length ? (FRACTION_HEADS[-e] as string) : `0.${"0".repeat(-e - 1)}`) + (STRIPPED[n] as string);
 }
 
 /**
@@ -75,6 +75,12 @@ for (let n = 100; n < 1000; n++) {
   MANTISSA[n] = digits.length === 1 ? digits : `${digits[0]}.${digits.slice(1)}`;
   TENTHS[n] = digits.length <= 2 ? String(n / 10) : `${digits.slice(0, 2)}.${digits[2]}`;
 }
+
+// "e-300" … "e300", the exponents threeDigits leaves (|e| < 300, one more at a decade's edge), and "0.", "0.0", "0.00"
+// before the digits of a plain number below 1: each number's words one join of strings made once
+const EXPONENT_OFFSET = 300;
+const EXPONENTS: readonly string[] = Array.from({ length: 2 * EXPONENT_OFFSET + 1 }, (_, k) => `e${k - EXPONENT_OFFSET}`);
+const FRACTION_HEADS: readonly string[] = ["", "0.", "0.0", "0.00"];
 
 // 10^0 … 10^330, correctly rounded (exact up to 10^22)
 const POW10: readonly number[] = Array.from({ length: 331 }, (_, k) => Number(`1e${k}`));
