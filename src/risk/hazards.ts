@@ -226,12 +226,15 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
   const network = site.kind === "optimizer-constant" && origin === "training setup" && context.weightGradients !== undefined;
   const siteEnd = site.end;
   const ended = siteEnd !== undefined || network;
-  if (siteEnd !== undefined && site.kind === "gradient-sum") {
+  // An end whose profiles are the start's own (a forward sum where the weights do not grow) would give the start's drafts
+  // again, number for number: the start is then the one reported (isWorse: a tie keeps it), as it is with no end drafts
+  const endJudged = siteEnd !== undefined && !(siteEnd.input === site.input && (siteEnd.output === undefined || siteEnd.output === site.output));
+  if (endJudged && site.kind === "gradient-sum") {
     // both sides at once: only the worse of each is reported, and a far smaller one need not be integrated
     gradientSumSides(site, siteEnd, context, start, end);
   } else {
     draftsFor(site, site.input, site.output, context, start, network ? "start" : null);
-    if (siteEnd !== undefined) {
+    if (endJudged) {
       draftsFor(site, siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, context, end, null);
     } else if (network) {
       draftsFor(site, site.input, site.output, context, end, "end");
@@ -245,8 +248,13 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
   let findingCount = 0;
   // a network-wide count names the tensor contributing most, as its sentence does: the check's layer and input are
   // that tensor's (the first evaluation naming one), and so is its finding's subject
-  let layer = site.layer;
-  let input = site.input;
+  // the site's fields read once (sites of several kinds have several layouts, so each read is a look-up)
+  const siteLayer = site.layer;
+  const siteInput = site.input;
+  // a layer's weight and bias gradients are summed apart: their findings are told apart by the tensor
+  const siteTensor = site.kind === "gradient-sum" || site.gradient === true ? site.tensor : undefined;
+  let layer = siteLayer;
+  let input = siteInput;
   const counting = context.countOnly === true;
   for (let i = 0; i < start.count; i++) {
     const first = start.items[i] as Draft;
@@ -259,8 +267,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
     const at = endWorse ? "end" : "start";
     const sentence = counting ? "" : sentenceText(worse, site, context, ended ? at : null, origin);
     const topInput = worse.topInput;
-    const subject = topInput !== undefined ? worse.topLayer : site.layer;
-    if (topInput !== undefined && input === site.input) {
+    const subject = topInput !== undefined ? worse.topLayer : siteLayer;
+    if (topInput !== undefined && input === siteInput) {
       layer = subject;
       input = topInput;
     }
@@ -275,7 +283,7 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
       sentence,
     };
     // an evaluation names its own layer only where it is not the check's: most name none, and keep one layout
-    if (subject !== site.layer) evaluation.layer = subject;
+    if (subject !== siteLayer) evaluation.layer = subject;
     evaluations[evaluationCount++] = evaluation;
     if (verdict !== "fits") {
       // `at` always present (undefined for a site without an end, which JSON leaves out): one layout
@@ -283,8 +291,7 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
         kind: worse.kind,
         severity: verdict,
         format: worse.format,
-        // a layer's weight and bias gradients are summed apart: their findings are told apart by the tensor
-        subject: (site.kind === "gradient-sum" || site.gradient === true) && site.tensor !== undefined && subject === site.layer ? site.tensor : subject,
+        subject: siteTensor !== undefined && subject === siteLayer ? siteTensor : subject,
         source: "hazard",
         value: worse.value,
         threshold: worse.threshold,
@@ -294,15 +301,15 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
     }
   }
   // the check took a network-wide count's tensor for its layer: that tensor's evaluations name none, the others the site's
-  if (layer !== site.layer) {
+  if (layer !== siteLayer) {
     for (let i = 0; i < evaluationCount; i++) {
       const evaluation = evaluations[i] as HazardEvaluation;
       if (evaluation.layer === layer) delete evaluation.layer;
-      else if (evaluation.layer === undefined) evaluation.layer = site.layer;
+      else if (evaluation.layer === undefined) evaluation.layer = siteLayer;
     }
   }
-  const evaluationList = counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount);
-  const findingList = counting && findingCount === 0 ? NONE : findings.slice(0, findingCount);
+  const evaluationList = counting && evaluationCount === 0 ? NONE : exactList(evaluations, evaluationCount);
+  const findingList = counting && findingCount === 0 ? NONE : exactList(findings, findingCount);
   if (counting) return countedCheck(site, layer, input, origin, evaluationList, findingList);
   const check: HazardCheck = {
     kind: site.kind,
@@ -363,6 +370,22 @@ function countedCheck(
   check.findings = findings;
   check.constant = site.constant;
   return check;
+}
+
+// The first `count` items of a working array as a list of their own, at its exact length: an array literal for the
+// few a site has (three at most but for the loss value), which V8 makes inline, where a call of slice goes through
+// the builtin
+function exactList<T>(items: T[], count: number): T[] {
+  switch (count) {
+    case 1:
+      return [items[0] as T];
+    case 2:
+      return [items[0] as T, items[1] as T];
+    case 3:
+      return [items[0] as T, items[1] as T, items[2] as T];
+    default:
+      return items.slice(0, count);
+  }
 }
 
 // evaluateHazard's working arrays (it runs to completion before it is entered again)
@@ -576,7 +599,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       if (!tail.holds(format, verdict, "", terms, value, 0)) {
         tail.keep(format, verdict, "", terms, value, 0, ` accumulates ${terms} terms in ${format}: relative rounding error about √n·u = ${plainNumber(value)} (${verdictWord(verdict)}).`);
       }
-      return "The sum making " + madeBySum(site) + tail.text;
+      return sumMaking(site) + tail.text;
     }
     case GRADIENT_ACCUMULATION_OVERFLOW: {
       const unscaled = context.lossScale === 1 ? 1 : 0;
@@ -597,7 +620,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
           `${sharePercent(value)} of their squared norm lies below its flush bound ${plainNumber(flushBound)} and is lost${side} (${verdictWord(verdict)})`;
         tail.keep(format, verdict, side, value, unscaled, flushBound, verdict === "fits" ? `${said}.` : `${said}: accumulate in binary32 (\`accumulate: binary32\`), or a larger loss scale.`);
       }
-      return "The sum making " + madeBySum(site) + " adds terms of rms " + plainNumber(draft.extra) + tail.text;
+      return sumMaking(site) + " adds terms of rms " + plainNumber(draft.extra) + tail.text;
     }
     case EPSILON_KEPT:
       return `The optimizer epsilon ${plainNumber(draft.extra)} stays nonzero in ${format}.`;
@@ -654,8 +677,30 @@ function gradientOf(site: HazardSite): string {
 // what a sum of the backward pass makes, in words (after "the sum making"): a named gradient, or the gradient at its
 // layer's input
 function madeBySum(site: HazardSite): string {
-  return site.tensor ?? `the gradient at ${site.layer}'s input`;
+  const tensor = site.tensor;
+  if (tensor !== undefined) return tensor;
+  if (site.layer !== madeLayer) {
+    madeLayer = site.layer;
+    madeInput = `the gradient at ${madeLayer}'s input`;
+  }
+  return madeInput;
 }
+// the words madeBySum made last, and the layer they name: a backward sum's three sentences each name what it makes
+let madeLayer: string | undefined = undefined;
+let madeInput = "";
+
+// "The sum making …", opening two of a backward sum's three sentences: made once for them both (the last kept, with
+// what it names)
+function sumMaking(site: HazardSite): string {
+  const made = madeBySum(site);
+  if (made !== sumMade) {
+    sumMade = made;
+    sumMakingWords = "The sum making " + made;
+  }
+  return sumMakingWords;
+}
+let sumMade: string | undefined = undefined;
+let sumMakingWords = "";
 
 // A profile times a factor (rms and bound; as scaleProfile of ./profile.ts), written into `slot`, one of the working
 // profiles below, laid out as magnitude/profile.ts's profileOf literal (every key, absent ones undefined, in its order),
@@ -833,19 +878,25 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
 
 // P(some partial sum of `terms` terms of `profile` reaches `level` in a step), `coherent` when the terms share one sign
 function partialSumsOverflow(profile: MagnitudeProfile, terms: number, level: number, coherent: boolean): number {
+  if (!(profile.rms > 0) || (!coherent && sumFarBelow(profile, level, terms))) return 0;
+  if (coherent) {
+    // the sum passes the level exactly when the drawn scale passes level/terms: log2 r ~ N(log2 rms, spread²)
+    return profile.log2Spread > 0
+      ? preciseNormalSf((Math.log2(level / terms) - Math.log2(profile.rms)) / profile.log2Spread)
+      : terms * profile.rms >= level ? 1 : 0;
+  }
+  return partialSumsOverDraws(profile, terms, level);
+}
+
+// partialSumsOverflow's draw sum for random-sign terms, a function of its own: the closure's variables would otherwise
+// be a context made on every call, even for the sums settled far below (nearly every sum of a large check)
+function partialSumsOverDraws(profile: MagnitudeProfile, terms: number, level: number): number {
   const outputs = Math.max(1, nonzeroElements(profile) / terms);
-  return !(profile.rms > 0) || (!coherent && sumFarBelow(profile, level, terms))
-    ? 0
-    : coherent
-      ? // the sum passes the level exactly when the drawn scale passes level/terms: log2 r ~ N(log2 rms, spread²)
-        profile.log2Spread > 0
-        ? preciseNormalSf((Math.log2(level / terms) - Math.log2(profile.rms)) / profile.log2Spread)
-        : terms * profile.rms >= level ? 1 : 0
-      : overDraws(profile.rms, profile.log2Spread, (r) => {
-          // P(|S_n| ≥ level) = 2·Q(level/(√n·r)), doubled for the running maximum
-          const perOutput = Math.min(1, 4 * normalSf(level / (Math.sqrt(terms) * r)));
-          return anyOf(perOutput, outputs);
-        });
+  return overDraws(profile.rms, profile.log2Spread, (r) => {
+    // P(|S_n| ≥ level) = 2·Q(level/(√n·r)), doubled for the running maximum
+    const perOutput = Math.min(1, 4 * normalSf(level / (Math.sqrt(terms) * r)));
+    return anyOf(perOutput, outputs);
+  });
 }
 
 /**
