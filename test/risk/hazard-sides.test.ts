@@ -175,6 +175,34 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     ]);
     expect(exploded[0]!.value).toBe(1);
   });
+
+  // An end holding the start's own profiles is not judged again (hazardCheck): judged, it would give the start's numbers
+  // bit for bit, and a tie reports the start. The reference is the end judged as a side of its own, from copies of the
+  // same profiles: the same check, every number, side and sentence.
+  it("an end holding the start's own profiles reports what an end of equal copies does (property)", () => {
+    const copy = (p: MagnitudeProfile): MagnitudeProfile => ({ ...p });
+    fc.assert(
+      fc.property(
+        gaussianLike,
+        fc.integer({ min: 1, max: 64 }),
+        fc.boolean(),
+        fc.constantFrom<HazardSite["kind"]>("gradient-sum", "accumulation", "norm-sum-of-squares", "softmax-exp"),
+        fc.boolean(),
+        plans,
+        (drawn, terms, withOutput, kind, gradient, plan) => {
+          const ctx = context({ gradients: plan.sums, scaling: plan.scaling, workers: plan.workers, workerGradients: plan.workerGradients, lossScale: 2 ** plan.log2LossScale });
+          const input = toProfile(drawn);
+          const output = withOutput ? toProfile(drawn, Math.log2(terms)) : undefined;
+          const base = { kind, terms, input, ...(output ? { output } : {}), ...(kind === "accumulation" && gradient ? { gradient: true } : {}) };
+          const own = evaluateHazard(site({ ...base, end: { input, ...(output ? { output } : {}) } }), ctx);
+          const copies = evaluateHazard(site({ ...base, end: { input: copy(input), ...(output ? { output: copy(output) } : {}) } }), ctx);
+          expect(own).toEqual(copies);
+          for (const evaluation of own.evaluations) expect(evaluation.at).toBe("start");
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
 });
 
 // A start whose overflow probability the settle bounds leave open but anyAboveAtMost puts under a quarter of the fails
