@@ -308,8 +308,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
       else if (evaluation.layer === undefined) evaluation.layer = siteLayer;
     }
   }
-  const evaluationList = counting && evaluationCount === 0 ? NONE : exactList(evaluations, evaluationCount);
-  const findingList = counting && findingCount === 0 ? NONE : exactList(findings, findingCount);
+  const evaluationList = counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount);
+  const findingList = counting && findingCount === 0 ? NONE : findings.slice(0, findingCount);
   if (counting) return countedCheck(site, layer, input, origin, evaluationList, findingList);
   const check: HazardCheck = {
     kind: site.kind,
@@ -370,22 +370,6 @@ function countedCheck(
   check.findings = findings;
   check.constant = site.constant;
   return check;
-}
-
-// The first `count` items of a working array as a list of their own, at its exact length: an array literal for the
-// few a site has (three at most but for the loss value), which V8 makes inline, where a call of slice goes through
-// the builtin
-function exactList<T>(items: T[], count: number): T[] {
-  switch (count) {
-    case 1:
-      return [items[0] as T];
-    case 2:
-      return [items[0] as T, items[1] as T];
-    case 3:
-      return [items[0] as T, items[1] as T, items[2] as T];
-    default:
-      return items.slice(0, count);
-  }
 }
 
 // evaluateHazard's working arrays (it runs to completion before it is entered again)
