@@ -322,8 +322,8 @@ function profileFrom(
  * as boxed doubles) had it make a box of its own for each of the five non-integer ones before they were overwritten in
  * place; an integer (a count, a share of 0) now takes no box at all. The numbers and the JSON are the same
  * (predictForCheck alone ~0.96x on the 1,000-layer spec at weight growth 1.1, none at growth 1, Dec 2026). A
- * constructor in place of the copy (~0.975x there) slowed the examples' checks (transformer-encoder 1.2x, wide-
- * classifier 1.3–1.7x): a spread of its objects (src/risk's moved profiles) was ~1.5x dearer than of a copy's.
+ * constructor in place of the copy (~0.975x there) slowed the examples' checks (transformer-encoder 1.2x,
+ * wide-classifier 1.3–1.7x): a spread of its objects (src/risk's moved profiles) was ~1.5x dearer than of a copy's.
  */
 const PROFILE_TEMPLATE = {
   elements: undefined,
