@@ -8,7 +8,7 @@
  * the only width rule is that the layer's input is a features tensor.
  */
 import type { LayerSpec, NetworkSpec } from "../spec/types.js";
-import { describeShape, featureWidth, initDistribution, initVariance, positionCount, sampleElements } from "./shape.js";
+import { describeShape, featureWidth, initDistribution, initVariance, positionCount, sameShape, sampleElements } from "./shape.js";
 import type { ConcreteLayerSpec, Graph, GraphFamily, GraphIssue, GraphLayer, GraphResult, GraphWeight, SampleShape, WeightDistribution } from "./types.js";
 
 /** Tensors larger than this (elements in one step) are questioned as a likely typo. */
@@ -409,17 +409,6 @@ function positive(value: number): boolean {
   return Number.isInteger(value) && value >= 1;
 }
 
-function sameShape(a: SampleShape, b: SampleShape): boolean {
-  switch (a.layout) {
-    case "tokens":
-      return b.layout === "tokens" && a.positions === b.positions;
-    case "features":
-      return b.layout === "features" && a.positions === b.positions && a.features === b.features;
-    case "image":
-      return b.layout === "image" && a.channels === b.channels && a.height === b.height && a.width === b.width;
-  }
-}
-
 /** Output size of a convolution: floor((n + 2p − k)/s) + 1; "same" gives ceil(n/s) (common practice). */
 export function convSize(n: number, kernel: number, stride: number, padding: "same" | "valid" | number): number {
   if (padding === "same") return Math.ceil(n / stride);
@@ -471,5 +460,4 @@ function zeroBias(n: number): GraphWeight {
   // biases start at zero (common practice)
   return { name: "bias", shape: [n], elements: n, fanIn: 1, fanOut: 1, variance: 0, value: undefined, distribution: "zeros", init: undefined };
 }
-
 

@@ -49,6 +49,18 @@ export function batchShape(batch: number, shape: SampleShape): number[] {
   }
 }
 
+/** Whether two sample shapes are one: the same layout and the same sizes. */
+export function sameShape(a: SampleShape, b: SampleShape): boolean {
+  switch (a.layout) {
+    case "tokens":
+      return b.layout === "tokens" && a.positions === b.positions;
+    case "features":
+      return b.layout === "features" && a.positions === b.positions && a.features === b.features;
+    case "image":
+      return b.layout === "image" && a.channels === b.channels && a.height === b.height && a.width === b.width;
+  }
+}
+
 /** Human-readable shape, e.g. "64 positions × 512 features". */
 export function describeShape(shape: SampleShape): string {
   switch (shape.layout) {

@@ -4,7 +4,7 @@
  * forward second moments layer by layer (src/ops/<family>/analytic.ts), the loss seed, backward second moments,
  * weight gradients as sums over batch and positions, the finite-width spread, and element maxima.
  */
-import { batchShape, positionCount, sampleElements } from "../graph/shape.js";
+import { batchShape, positionCount, sameShape, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight, SampleShape } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
 import { fmt, initSource, maybeWeight, textOf } from "../ops/common.js";
@@ -362,13 +362,15 @@ class Phase {
   outputShape(layer: GraphLayer): number[] {
     if (!this.build) return NO_SHAPE;
     if (this.weightProfiles === undefined) return batchShape(this.graph.batch, layer.output);
-    const last = this.lastShape;
-    if (last !== undefined && isBatchShape(last, this.graph.batch, layer.output)) return last;
-    const shape = batchShape(this.graph.batch, layer.output);
-    this.lastShape = shape;
-    return shape;
+    // (the batch is the graph's, one for every layer: like sample shapes give like arrays)
+    const last = this.lastSample;
+    if (last !== undefined && sameShape(last, layer.output)) return this.lastShape;
+    this.lastSample = layer.output;
+    this.lastShape = batchShape(this.graph.batch, layer.output);
+    return this.lastShape;
   }
-  private lastShape: number[] | undefined = undefined;
+  private lastSample: SampleShape | undefined = undefined;
+  private lastShape: number[] = NO_SHAPE;
 
   /** `output`, `profile`, `elements`: a tensor's moments and the profile already made of them, for a site that shares them. */
   hazard(layer: GraphLayer, h: OpHazard, output?: Signal, profile?: MagnitudeProfile, elements?: number): void {
@@ -739,19 +741,6 @@ class LayerPairs<K, V> {
       pairs[count + 1] = value;
     } else pairs.push(key, value);
     this.count = count + 2;
-  }
-}
-
-/** Whether `shape` is batchShape(batch, sample), element by element. */
-function isBatchShape(shape: readonly number[], batch: number, sample: SampleShape): boolean {
-  if (shape[0] !== batch) return false;
-  switch (sample.layout) {
-    case "tokens":
-      return shape.length === 2 && shape[1] === sample.positions;
-    case "features":
-      return sample.positions === 1 ? shape.length === 2 && shape[1] === sample.features : shape.length === 3 && shape[1] === sample.positions && shape[2] === sample.features;
-    case "image":
-      return shape.length === 4 && shape[1] === sample.channels && shape[2] === sample.height && shape[3] === sample.width;
   }
 }
 

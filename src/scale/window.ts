@@ -834,18 +834,24 @@ class WindowSearch {
     const rough = t.overflowRiskRough?.(k);
     table.flags[i] = flags | HAS_ROUGH;
     if (rough === undefined) return undefined;
-    const lower = t.overflowRiskRoughLower?.(k) ?? 0;
+    this.takeBounds(i, table, flags, t.overflowRiskRoughLower?.(k) ?? 0, rough);
+    return rough;
+  }
+
+  // Overflow bounds [low, high] of tensor i taken into the table (its flags as they were before this ask): the table's
+  // bounds where it had none, else its high lowered and its low raised; marked where they moved
+  private takeBounds(i: number, table: Table, flags: number, low: number, high: number): void {
+    const data = table.data;
     if ((flags & HAS_BOUNDS) === 0) {
-      table.data[4 * i] = lower;
-      table.data[4 * i + 1] = rough;
+      data[4 * i] = low;
+      data[4 * i + 1] = high;
       table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
       this.mark("overflow", table, i);
-    } else if (rough < (table.data[4 * i + 1] as number) || lower > (table.data[4 * i] as number)) {
-      if (rough < (table.data[4 * i + 1] as number)) table.data[4 * i + 1] = rough;
-      if (lower > (table.data[4 * i] as number)) table.data[4 * i] = lower;
+    } else if (high < (data[4 * i + 1] as number) || low > (data[4 * i] as number)) {
+      if (high < (data[4 * i + 1] as number)) data[4 * i + 1] = high;
+      if (low > (data[4 * i] as number)) data[4 * i] = low;
       this.mark("overflow", table, i);
     }
-    return rough;
   }
 
   // The curve's quick overflow bounds at k taken into the table as takeRough takes the rougher ones (marked as asked, the
@@ -855,17 +861,7 @@ class WindowSearch {
     table.flags[i] = flags | HAS_QUICK;
     const quick = this.quick;
     if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick) !== true) return false;
-    const data = table.data;
-    if ((flags & HAS_BOUNDS) === 0) {
-      data[4 * i] = quick[0] as number;
-      data[4 * i + 1] = quick[1] as number;
-      table.flags[i] = (table.flags[i] as number) | HAS_BOUNDS;
-      this.mark("overflow", table, i);
-    } else if ((quick[1] as number) < (data[4 * i + 1] as number) || (quick[0] as number) > (data[4 * i] as number)) {
-      if ((quick[1] as number) < (data[4 * i + 1] as number)) data[4 * i + 1] = quick[1] as number;
-      if ((quick[0] as number) > (data[4 * i] as number)) data[4 * i] = quick[0] as number;
-      this.mark("overflow", table, i);
-    }
+    this.takeBounds(i, table, flags, quick[0] as number, quick[1] as number);
     return true;
   }
 
