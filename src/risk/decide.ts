@@ -14,7 +14,7 @@
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
-import { energyBelow, fractionBelow, profileStatistics } from "./profile.js";
+import { energyBelow, fractionBelow, profileStatistics, riskProfile } from "./profile.js";
 import { capWithin, FAR_DRAW, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
@@ -30,10 +30,16 @@ const HEADROOM_MARGIN = 1 / 16;
 
 /**
  * One side of a tensor (its start or end profile after the loss-scale factor), its fields read once: a prediction's
- * profiles come in many layouts (correlations, coherent sums), and every read of a field is a look-up by layout.
+ * profiles come in many layouts (correlations, coherent sums), and every read of a field is a look-up by layout. The
+ * profile after the factor is made only where a number of the side is worked out ({@link Side.law}): most sides are
+ * decided by bounds on the fields alone.
  */
 class Side {
-  profile: MagnitudeProfile | null = null;
+  /** the profile as given, before `factor` */
+  source: MagnitudeProfile | null = null;
+  factor = 1;
+  /** the profile after the factor, once made (law) */
+  scaled: MagnitudeProfile | null = null;
   rms = 0;
   /** S·ln 2, 0 without a spread */
   m = 0;
@@ -55,13 +61,17 @@ class Side {
    * Reads a side's fields; false when its nonzero magnitudes may not follow the Gaussian law (a `bound` only caps them,
    * which lowers every share above it and none below it under the bound). An empty side is always read.
    */
-  read(profile: MagnitudeProfile): boolean {
-    const rms = profile.rms;
+  read(profile: MagnitudeProfile, factor: number): boolean {
+    // the scale and the bound as riskProfile multiplies them (x·1 = x exactly, so a factor of 1 reads the profile's own)
+    const rms = profile.rms * factor;
     const elements = profile.elements;
     const zeroFraction = profile.zeroFraction;
     const spread = profile.log2Spread;
-    const bound = profile.bound;
-    this.profile = profile;
+    const given = profile.bound;
+    const bound = given === undefined ? undefined : given * factor;
+    this.source = profile;
+    this.factor = factor;
+    this.scaled = null;
     this.settleRead = false;
     this.flushed = NaN;
     this.belowNormal = NaN;
@@ -76,6 +86,11 @@ class Side {
     }
     const shape = profile.shape;
     return shape === "gaussian" || shape === "half-gaussian" || shape === "bounded";
+  }
+
+  /** The side's profile after the factor: the given one for a factor of 1, else riskProfile's copy (made once). */
+  law(): MagnitudeProfile {
+    return (this.scaled ??= this.factor === 1 ? (this.source as MagnitudeProfile) : riskProfile(this.source as MagnitudeProfile, this.factor));
   }
 }
 
@@ -112,6 +127,17 @@ export class FormatDecision {
    */
   startOverflow = -1;
   endOverflow = -1;
+  /**
+   * The weights decided without findings so far (up to KEPT_WEIGHTS, the latest replacing the oldest): each one's start
+   * and end profile objects and the side numbers its decision left. A prediction shares one profile object among the
+   * weights of equal laws (the layers of one width and init), and no finding means nothing names the tensor: a weight
+   * with the same two objects is decided as that one was (decidedFindings is a function of the profiles, the role's
+   * kind and the decision, and of the tensor's id and factor only through findings it makes).
+   */
+  readonly keptStarts: (MagnitudeProfile | null)[] = [];
+  readonly keptEnds: (MagnitudeProfile | null)[] = [];
+  readonly keptOverflows: number[] = [];
+  keptNext = 0;
 
   constructor(limits: RangeLimits, thresholds: RiskThresholds) {
     const t = thresholds;
@@ -162,16 +188,15 @@ const BELOW_OPEN = 2;
  */
 function belowCode(side: Side, d: FormatDecision, gradient: boolean): number {
   if (side.count === 0) return BELOW_DECIDED;
-  const profile = side.profile as MagnitudeProfile;
   const limits = d.limits;
   const flushBound = limits.flushBound;
   // at or past a bound the Gaussian's share is not the law's: judged from the numbers
   if (side.bound > 0 && !(flushBound < side.bound)) return BELOW_OPEN;
   const a = flushBound / side.rms;
-  if (!capWithin(DENSITY * a, side.m, d.flushed / 2) && !(fractionBelow(profile, flushBound) <= d.flushed)) return BELOW_OPEN;
-  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2) && !(energyBelow(profile, flushBound) <= d.energy)) return BELOW_OPEN;
+  if (!capWithin(DENSITY * a, side.m, d.flushed / 2) && !(fractionBelow(side.law(), flushBound) <= d.flushed)) return BELOW_OPEN;
+  if (gradient && !capWithin((DENSITY / 3) * a * a * a, 3 * side.m, d.energy / 2) && !(energyBelow(side.law(), flushBound) <= d.energy)) return BELOW_OPEN;
   // the noise by its bound at half the limit (the noise is computed within 2e-7 of its integral's shares), else itself
-  return gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2) || subnormalNoise(profile, limits) <= d.noiseLimit ? BELOW_DECIDED : NOISE_PAST;
+  return gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2) || subnormalNoise(side.law(), limits) <= d.noiseLimit ? BELOW_DECIDED : NOISE_PAST;
 }
 
 // Whether the probability that some of the side's nonzero elements reach t in a step, over draws, is at most `target`,
@@ -209,7 +234,7 @@ function headroomDecided(side: Side, d: FormatDecision): boolean {
 function overflowDecided(side: Side, d: FormatDecision): number {
   if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar, d.overflowQuick)) return -1;
   if (side.count === 0) return 0;
-  return surelySettledOne(side, d.limits.overflowLevel) ? 1 : overflowRiskOf(side.profile as MagnitudeProfile, d.limits);
+  return surelySettledOne(side, d.limits.overflowLevel) ? 1 : overflowRiskOf(side.law(), d.limits);
 }
 
 // Whether settle.ts's settledAnyAbove settles the probability that some of the side's nonzero elements reach t as 1, shown
@@ -229,11 +254,12 @@ function surelySettledOne(side: Side, t: number): boolean {
 /**
  * The findings of a tensor judged in a format (as src/risk/tensor.ts's tensorFindings gives them from its numbers),
  * decided from bounds and the numbers past their bounds; null where that does not decide them (the tensor is then judged
- * from its numbers). `start` and `end` are the profiles after the loss-scale factor; `same` when they are one
+ * from its numbers). `start` and `end` are the tensor's profiles before its loss-scale factor `factor`, which the
+ * decision applies as riskProfile does (making the copy only where a number is worked out); `same` when they are one
  * distribution. For a format that holds the tensor, without scale factors, and a tensor that is not a probability row
  * (the caller's conditions); `decision` is the format's, made once for every tensor the format judges. No findings is
- * the shared NO_FINDINGS (src/risk/tensor-finding.ts), which the caller copies where it hands the array out. `factor`:
- * the loss-scale factor the profiles carry (a gradient's subnormal remedy names the scale); `words` false for findings
+ * the shared NO_FINDINGS (src/risk/tensor-finding.ts), which the caller copies where it hands the array out (a gradient's
+ * subnormal remedy names the scale `factor`); `words` false for findings
  * only counted (TensorRiskOptions.countOnly: the noise's sentence left empty, as tensorFindings leaves it).
  */
 export function decidedFindings(
@@ -246,16 +272,48 @@ export function decidedFindings(
   words = true,
 ): Finding[] | null {
   const d = decision;
+  if (tensor.role !== "weight" || factor !== 1) return decided(tensor, start, end, same, d, factor, words);
+  const starts = d.keptStarts;
+  for (let i = 0; i < starts.length; i++) {
+    if (starts[i] === start && d.keptEnds[i] === end) {
+      d.startOverflow = d.keptOverflows[2 * i] as number;
+      d.endOverflow = d.keptOverflows[2 * i + 1] as number;
+      return NO_FINDINGS;
+    }
+  }
+  const found = decided(tensor, start, end, same, d, factor, words);
+  if (found === NO_FINDINGS) {
+    const i = d.keptNext;
+    d.keptNext = (i + 1) % KEPT_WEIGHTS;
+    starts[i] = start;
+    d.keptEnds[i] = end;
+    d.keptOverflows[2 * i] = d.startOverflow;
+    d.keptOverflows[2 * i + 1] = d.endOverflow;
+  }
+  return found;
+}
+// how many weights' decisions a FormatDecision keeps: a network has few weight laws (a width's weights, its biases)
+const KEPT_WEIGHTS = 8;
+
+function decided(
+  tensor: TensorPrediction,
+  start: MagnitudeProfile,
+  end: MagnitudeProfile,
+  same: boolean,
+  d: FormatDecision,
+  factor: number,
+  words: boolean,
+): Finding[] | null {
   const role = tensor.role;
   const gradient = isGradientRole(role);
   const first = d.start;
   const last = same ? first : d.end;
-  if (!first.read(start)) return null;
+  if (!first.read(start, factor)) return null;
   const firstBelow = belowCode(first, d, gradient);
   if (firstBelow === BELOW_OPEN) return null;
   let lastBelow = firstBelow;
   if (!same) {
-    if (!last.read(end)) return null;
+    if (!last.read(end, factor)) return null;
     lastBelow = belowCode(last, d, gradient);
     if (lastBelow === BELOW_OPEN) return null;
   }
@@ -326,7 +384,7 @@ function noiseAlone(tensor: TensorPrediction, d: FormatDecision, same: boolean, 
   const noise = noiseFinding(tensor, d, same, words, (first, last) => {
     const startHeadroom = headroomOf(first, d);
     const headroom = same ? startHeadroom : Math.min(startHeadroom, headroomOf(last, d));
-    return liftRemedy(first.profile as MagnitudeProfile, last.profile as MagnitudeProfile, same, factor, headroom, limits, d.noiseLimit, t);
+    return liftRemedy(first.law(), last.law(), same, factor, headroom, limits, d.noiseLimit, t);
   });
   if (noise === null) return null;
   FOUND[0] = noise;
@@ -369,13 +427,13 @@ function noiseFinding(
 function settledNoise(side: Side, limits: RangeLimits): number {
   settle(side, limits);
   const fraction = Math.max(0, belowNormalShare(side, limits) - flushedShare(side, limits));
-  return fraction === 0 && !side.settled ? 0 : subnormalNoise(side.profile as MagnitudeProfile, limits);
+  return fraction === 0 && !side.settled ? 0 : subnormalNoise(side.law(), limits);
 }
 
 // settledRisk's settle of a side's shares below the flush bound, by the same calls in the same order (src/risk/tensor.ts)
 function settle(side: Side, limits: RangeLimits): void {
   if (side.settleRead) return;
-  const profile = side.profile as MagnitudeProfile;
+  const profile = side.law();
   const belowNormal = limits.flushBound >= limits.minNormal ? UNSETTLED : settledBelow(profile, limits.minNormal);
   side.belowNormalSettled = belowNormal;
   side.settled = belowNormal === 0 || settledBelow(profile, limits.flushBound) === 0;
@@ -385,7 +443,7 @@ function settle(side: Side, limits: RangeLimits): void {
 // settledRisk's flushedFraction of a non-empty side
 function flushedShare(side: Side, limits: RangeLimits): number {
   settle(side, limits);
-  if (side.flushed !== side.flushed) side.flushed = side.settled ? 0 : fractionBelow(side.profile as MagnitudeProfile, limits.flushBound);
+  if (side.flushed !== side.flushed) side.flushed = side.settled ? 0 : fractionBelow(side.law(), limits.flushBound);
   return side.flushed;
 }
 
@@ -394,7 +452,7 @@ function belowNormalShare(side: Side, limits: RangeLimits): number {
   if (side.belowNormal !== side.belowNormal) {
     settle(side, limits);
     if (limits.flushBound >= limits.minNormal) side.belowNormal = flushedShare(side, limits);
-    else side.belowNormal = side.belowNormalSettled === 0 ? 0 : fractionBelow(side.profile as MagnitudeProfile, limits.minNormal);
+    else side.belowNormal = side.belowNormalSettled === 0 ? 0 : fractionBelow(side.law(), limits.minNormal);
   }
   return side.belowNormal;
 }
@@ -403,7 +461,7 @@ function belowNormalShare(side: Side, limits: RangeLimits): number {
 function energyShare(side: Side, limits: RangeLimits): number {
   if (side.energy !== side.energy) {
     settle(side, limits);
-    const profile = side.profile as MagnitudeProfile;
+    const profile = side.law();
     side.energy = side.settled || settledEnergyBelow(profile, limits.flushBound) === 0 ? 0 : energyBelow(profile, limits.flushBound);
   }
   return side.energy;
@@ -441,7 +499,7 @@ function noisePast(side: Side, d: FormatDecision): number {
   if (side.count === 0) return -1;
   const limits = d.limits;
   if (boundsHold(side, limits) && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
-  const noise = subnormalNoise(side.profile as MagnitudeProfile, limits);
+  const noise = subnormalNoise(side.law(), limits);
   if (noise <= d.noiseLimit) return -1;
   settle(side, limits);
   if (side.settled) return noise;
@@ -498,14 +556,14 @@ function counted(subject: string, d: FormatDecision, kind: FindingKind, severity
  * and headroom are decided as {@link decidedFindings} decides them, so what is worked out here is only what a finding
  * needs: no statistics (the footroom), and no overflow integral or share that a bound keeps under its threshold. Puts
  * them at the start of FOUND (src/risk/tensor-finding.ts) and returns their count; −1 where the bounds do not read the
- * law (a tensor judged from its numbers then).
+ * law (a tensor judged from its numbers then). `start`, `end` and `factor` as {@link decidedFindings} takes them.
  */
-export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfile, end: MagnitudeProfile, same: boolean, decision: FormatDecision): number {
+export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfile, end: MagnitudeProfile, same: boolean, decision: FormatDecision, factor = 1): number {
   const d = decision;
   const first = d.start;
   const last = same ? first : d.end;
-  if (!first.read(start)) return -1;
-  if (!same && !last.read(end)) return -1;
+  if (!first.read(start, factor)) return -1;
+  if (!same && !last.read(end, factor)) return -1;
   const t = d.thresholds;
   const subject = tensor.id;
   let found = 0;
@@ -542,5 +600,5 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
 
 // a side's headroom as settledRisk reports it
 function headroomOf(side: Side, d: FormatDecision): number {
-  return Math.log2(d.limits.maxFinite / profileStatistics(side.profile as MagnitudeProfile, d.thresholds).max);
+  return Math.log2(d.limits.maxFinite / profileStatistics(side.law(), d.thresholds).max);
 }

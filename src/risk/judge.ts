@@ -21,7 +21,7 @@ import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
-import { rangeLimits, riskProfile, sameDistribution } from "./profile.js";
+import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
   isProbabilityRow,
@@ -402,7 +402,7 @@ function judged(spec: NetworkSpec, prediction: Prediction, options: CheckOptions
   checkAssumptions(assumptions, plan, settings, scales, training.length > 0, thresholds);
   for (let i = 0; i < settings.length; i++) {
     const setting = settings[i] as FormatSetting;
-    const lost = valuesLost(plan, setting, tensors);
+    const lost = valuesLost(setting);
     if (lost === undefined) continue;
     (formatChecks[i] as FormatCheck).valuesLost = lost;
     assumptions.push(
@@ -521,11 +521,9 @@ export function judgeScaled(
 // judgeTensor judges it: a part of a stored array, a probability row, scale factors, a law the bounds do not read
 function countedTensor(tensor: TensorPrediction, setting: FormatSetting, lossScale: number, arrays: Map<string, TensorPrediction[]> | null): number {
   if (setting.held.perTensorScaling || arrays?.has(tensor.id) === true || isProbabilityRow(tensor)) return -1;
-  const factor = lossScaleFactor(tensor.role, lossScale);
-  const start = factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
   const same = sameDistribution(tensor.start, tensor.end);
-  const end = same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
-  return countedFindings(tensor, start, end, same, setting.decision);
+  // the profiles before the factor, which the decision applies where it works a number out
+  return countedFindings(tensor, tensor.start, same ? tensor.start : tensor.end, same, setting.decision, lossScaleFactor(tensor.role, lossScale));
 }
 
 /**
@@ -569,6 +567,11 @@ interface FormatSetting {
   /** the findings of the tensors it judges (judgeTensors fills them, judgeFormat adds the hazards'), and their count */
   findings: Finding[];
   tensorsJudged: number;
+  /** whether `evaluated` is the plan itself (the format is planned) */
+  planned: boolean;
+  /** in a planned format, the stored tensors it loses values of and the first of them (gathered by judgeTensors) */
+  lost: number;
+  lostFirst: string;
 }
 
 function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thresholds: RiskThresholds): FormatSetting[] {
@@ -598,6 +601,9 @@ function formatSettings(plan: PrecisionPlan, formats: readonly FormatName[], thr
       lossScale: 1,
       findings: [],
       tensorsJudged: 0,
+      planned: evaluated === plan,
+      lost: 0,
+      lostFirst: "",
     });
   }
   return settings;
@@ -655,15 +661,23 @@ function gatherFindings(checked: CheckedTensor, tensor: TensorPrediction, settin
     const setting = settings[i] as FormatSetting;
     const judged = entryFormat(setting.evaluated, entry) === setting.format;
     if (!judged && !everyFormat) continue;
-    gather(setting, CheckedTensor.findingsIn(checked, setting.format), judged);
+    gather(setting, tensor, CheckedTensor.findingsIn(checked, setting.format), judged);
   }
 }
 
 // a tensor's findings into its setting's, counted where the setting judges it (the loss in the accumulate format, not in
-// its slot's)
-function gather(setting: FormatSetting, found: readonly Finding[], judged: boolean): void {
-  for (let k = 0; k < found.length; k++) setting.findings.push(found[k] as Finding);
-  if (judged) setting.tensorsJudged++;
+// its slot's), and in a planned format the tensor counted where they lose values (valuesLost)
+function gather(setting: FormatSetting, tensor: TensorPrediction, found: readonly Finding[], judged: boolean): void {
+  let loses = false;
+  for (let k = 0; k < found.length; k++) {
+    const finding = found[k] as Finding;
+    setting.findings.push(finding);
+    if (!loses) loses = LOSES_VALUES.has(finding.kind);
+  }
+  if (!judged) return;
+  setting.tensorsJudged++;
+  // judged in a planned format, its slot's format (the loss, held in the accumulate one, is not counted)
+  if (loses && setting.planned && tensor.role !== "weight-gradient" && tensor.role !== "loss" && setting.lost++ === 0) setting.lostFirst = tensor.id;
 }
 
 // the plan entry whose format holds a tensor: the loss is a reduction, held in the accumulate format (Micikevicius et
@@ -724,9 +738,6 @@ function judgeTensor(
   const checked = new CheckedTensor(tensor, lossScale, thresholds, scaled, ledger, counted);
   const factor = lossScaleFactor(tensor.role, lossScale);
   const same = sameDistribution(tensor.start, tensor.end);
-  // the profiles the bounds read, after the loss-scale factor (made when a format first needs them)
-  let start: MagnitudeProfile | undefined;
-  let end: MagnitudeProfile | undefined;
   const bounded = parts === undefined && !isProbabilityRow(tensor);
   // a format judged at another loss scale sees the tensor scaled by its own (gradients and the loss; the rest are unscaled)
   let other: ScaledTensor | undefined;
@@ -748,10 +759,9 @@ function judgeTensor(
       if (!options.perTensorScaling) {
         if (!judged) findings = NO_FINDINGS;
         else if (bounded) {
-          start ??= factor === 1 ? tensor.start : riskProfile(tensor.start, factor);
-          end ??= same ? start : factor === 1 ? tensor.end : riskProfile(tensor.end, factor);
           const decision = setting.decision;
-          findings = decidedFindings(tensor, start, end, same, decision, factor, options.countOnly !== true);
+          // the profiles before the factor, which the decision applies where it works a number out
+          findings = decidedFindings(tensor, tensor.start, same ? tensor.start : tensor.end, same, decision, factor, options.countOnly !== true);
           startOverflow = decision.startOverflow;
           endOverflow = decision.endOverflow;
         }
@@ -777,7 +787,7 @@ function judgeTensor(
       found = risk.findings;
     }
     verdict = worseVerdict(verdict, riskVerdict);
-    if (gathering) gather(setting, found, judged);
+    if (gathering) gather(setting, tensor, found, judged);
   }
   checked.verdict = verdict;
   return checked;
@@ -1157,23 +1167,11 @@ const LOSES_VALUES: ReadonlySet<Finding["kind"]> = new Set(["flushed-values", "g
  * by the optimizer, judged there) and the loss. Why it matters: a float64 simulation of specs/deep-relu-glorot.yaml in its
  * binary16 plan (9 draws; hidden-stack.40–48's pre-activations predicted to flush 2.5–39%) measured the gradients below
  * 0.6–0.8 binade under the prediction, where the same run kept in binary64 put them −0.1…+0.4 from it
- * (test/check/carried-flush.test.ts holds the effect on a small stack).
+ * (test/check/carried-flush.test.ts holds the effect on a small stack). Counted as judgeTensors gathers each tensor's
+ * findings into its format (gather), in tensor order, rather than by a second walk over every tensor.
  */
-function valuesLost(plan: PrecisionPlan, setting: FormatSetting, tensors: readonly TensorCheck[]): FormatCheck["valuesLost"] {
-  if (setting.evaluated !== plan) return undefined;
-  let count = 0;
-  let first = "";
-  for (let j = 0; j < tensors.length; j++) {
-    const tensor = tensors[j] as TensorCheck;
-    if (tensor.role === "weight-gradient" || tensor.role === "loss") continue;
-    if (entryFormat(plan, tensor.slot) !== setting.format) continue;
-    const found = findingsOfTensor(tensor, setting.format);
-    let loses = false;
-    for (let k = 0; k < found.length && !loses; k++) loses = LOSES_VALUES.has((found[k] as Finding).kind);
-    if (!loses) continue;
-    if (count++ === 0) first = tensor.id;
-  }
-  return count === 0 ? undefined : { tensors: count, first };
+function valuesLost(setting: FormatSetting): FormatCheck["valuesLost"] {
+  return setting.lost === 0 ? undefined : { tensors: setting.lost, first: setting.lostFirst };
 }
 
 // appends the check's assumptions to `notes`

@@ -9,7 +9,7 @@ import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { judgePrediction, limitsFor, planFor } from "../../src/risk/judge.js";
 import { noiseAtMost, noiseWithin, subnormalNoise } from "../../src/risk/subnormal-noise.js";
 import { riskProfile } from "../../src/risk/profile.js";
-import { tensorFormatRisk, tensorStatistics, type TensorRiskOptions } from "../../src/risk/tensor.js";
+import { lossScaleFactor, tensorFormatRisk, tensorStatistics, type TensorRiskOptions } from "../../src/risk/tensor.js";
 import type { Finding, RangeLimits, RiskThresholds } from "../../src/risk/types.js";
 import { parseSpec } from "../../src/spec/index.js";
 import { predict } from "../../src/magnitude/index.js";
@@ -377,6 +377,76 @@ describe("findings that are only counted", () => {
     const uniform = { elements: 4096, zeroFraction: 0, shape: "uniform" as const, rms: 1, log2Spread: 0 };
     const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
     expect(counted(other, BINARY16, DEFAULT_THRESHOLDS)).toBeNull();
+  });
+});
+
+describe("findings decided at a loss scale", () => {
+  it("are tensorFormatRisk's at that scale, the decision applying the tensor's factor to its profiles", () => {
+    // the caller passes the prediction's own profiles and the tensor's loss-scale factor (a gradient's: the scale; 1 for
+    // the others), as judgeTensor does; the reference scales them first (riskProfile) and judges the numbers
+    let decided = 0;
+    let scaled = 0;
+    fc.assert(
+      fc.property(tensors, fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2), fc.integer({ min: -24, max: 24 }), (tensor, limits, k) => {
+        const lossScale = 2 ** k;
+        const factor = lossScaleFactor(tensor.role, lossScale);
+        const same = tensor.start === tensor.end;
+        const statistics = tensorStatistics(tensor, lossScale, DEFAULT_THRESHOLDS);
+        const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+        const found = decidedFindings(tensor, tensor.start, tensor.end, same, new FormatDecision(limits, DEFAULT_THRESHOLDS), factor);
+        if (found !== null) {
+          decided++;
+          expect(found).toEqual(tensorFormatRisk(tensor, limits, statistics, options).findings);
+          if (factor !== 1 && found.length > 0) scaled++;
+        }
+        const n = countedFindings(tensor, tensor.start, tensor.end, same, new FormatDecision(limits, DEFAULT_THRESHOLDS), factor);
+        expect(n).toBeGreaterThanOrEqual(0);
+        expect(FOUND.slice(0, n).map(countedPart)).toEqual(tensorFormatRisk(tensor, limits, statistics, { ...options, countOnly: true }).findings.map(countedPart));
+      }),
+      { numRuns: 1500 },
+    );
+    expect(decided).toBeGreaterThan(800);
+    expect(scaled).toBeGreaterThan(50);
+  });
+});
+
+describe("weights that share their profile objects", () => {
+  it("are decided with one format's decision as each alone, each finding naming its own tensor", () => {
+    // a prediction shares one profile object among equal weights (the layers of one width); a decision keeps the latest
+    // weights decided without findings by those objects, so these are judged in an order that meets laws again, more
+    // of them than it keeps
+    let again = 0;
+    fc.assert(
+      fc.property(
+        fc.array(tensors, { minLength: 1, maxLength: 12 }),
+        fc.array(fc.nat(), { minLength: 4, maxLength: 40 }),
+        fc.constantFrom(BINARY16, BFLOAT16_FTZ, E5M2),
+        (drawn, picks, limits) => {
+          // every other law starts as the one before it (the same object) and ends as its own
+          const laws = drawn.map((law, j) => (j % 2 === 1 ? { ...law, start: (drawn[j - 1] as TensorPrediction).start } : law));
+          const decision = new FormatDecision(limits, DEFAULT_THRESHOLDS);
+          const seen = new Set<number>();
+          picks.forEach((pick, i) => {
+            const law = laws[pick % laws.length] as TensorPrediction;
+            const tensor = { ...law, id: `dense-${i}/weight`, layer: `dense-${i}`, role: "weight" } as TensorPrediction;
+            const same = tensor.start === tensor.end;
+            const found = decidedFindings(tensor, tensor.start, tensor.end, same, decision);
+            const alone = new FormatDecision(limits, DEFAULT_THRESHOLDS);
+            expect(found).toEqual(decidedFindings(tensor, tensor.start, tensor.end, same, alone));
+            if (found !== null) {
+              // the side numbers the tensor's risk reports (read where the findings were decided)
+              expect([decision.startOverflow, decision.endOverflow]).toEqual([alone.startOverflow, alone.endOverflow]);
+              const options: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS };
+              expect(found).toEqual(tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), options).findings);
+              if (found.length === 0 && seen.has(pick % laws.length)) again++;
+            }
+            seen.add(pick % laws.length);
+          });
+        },
+      ),
+      { numRuns: 300 },
+    );
+    expect(again).toBeGreaterThan(200);
   });
 });
 
