@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { anyAboveEnclosure, enclosedLaw, enclosureApplies, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -303,16 +303,17 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const m = this.m;
     if (k === memo[m + OVERFLOW_K]) return;
     const t = this.limits.overflowLevel * pow2Below(k);
-    const base = this.levelsAt();
-    const levels = this.levels.levels;
-    boundsOf(this.start, t, PAIR, levels, base);
+    this.levelsAt();
+    // (log2 t once for both profiles: the same double boundsOf took twice per profile)
+    const tLog2 = Math.log2(t);
+    this.boundsOf(0, t, tLog2);
     memo[m + OVERFLOW_START] = PAIR[1]!;
     memo[m + OVERFLOW_START_LOW] = PAIR[0]!;
     if (this.same) {
       memo[m + OVERFLOW_END] = memo[m + OVERFLOW_START]!;
       memo[m + OVERFLOW_END_LOW] = memo[m + OVERFLOW_START_LOW]!;
     } else {
-      boundsOf(this.end, t, PAIR, levels, base + 3);
+      this.boundsOf(1, t, tLog2);
       memo[m + OVERFLOW_END] = PAIR[1]!;
       memo[m + OVERFLOW_END_LOW] = PAIR[0]!;
     }
@@ -321,6 +322,45 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
 
   private levelsAt(): number {
     return this.levels.at(this.index, this.start, this.end);
+  }
+
+  // Bounds on one profile's any-above probability at t into PAIR (low NaN when there is none), side 0 the start
+  // profile, 1 the end (its levels made): where the law has moment bounds (src/scale/overflow-enclosure.ts), first the
+  // shifted tails (two normal tails), which settle a tensor far from t alone; else, at a spread of a binade or more, the
+  // moment bounds (a few normal tails more, far tighter, both ways). Otherwise the segment upper bound (a handful of
+  // evaluations far in the tail, where it falls fast; at a narrow spread it beats the moment bounds, whose remainder
+  // grows as the spread's inverse cube), and where it leaves more than SEGMENT_ENOUGH the moment bounds where the law
+  // has them. Any of them serves the window's search, which then integrates where they do not decide. The tests of
+  // enclosureApplies, x = log2 t − log2 rms and the grid counts' moments are the level table's of the profile (as
+  // roughOf and quickOf read them): the same tests, doubles and moments anyAboveEnclosure takes, bit for bit.
+  private boundsOf(side: number, t: number, tLog2: number): void {
+    const table = this.levels;
+    const j = 2 * this.index + side;
+    const base = 6 * this.index + 3 * side;
+    const profile = side === 0 ? this.start : this.end;
+    const into = PAIR;
+    const applies = table.applies[j] === 1 && t > 0 && !(t > table.bound[j]!);
+    const x = tLog2 - table.rmsLog2[j]!;
+    const spread = table.spread[j]!;
+    if (applies) {
+      const levels = table.levels;
+      shiftBounds(x, spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, into, 0);
+      if (!(into[1]! > SEGMENT_ENOUGH)) return;
+      if (spread >= 1 && enclosureWith(table.momentsBelow(j, profile), table.momentsAbove(j), spread, x, ENCLOSED, 0)) {
+        if (ENCLOSED[0]! > into[0]!) into[0] = ENCLOSED[0]!;
+        if (ENCLOSED[1]! < into[1]!) into[1] = ENCLOSED[1]!;
+        return;
+      }
+    }
+    const shiftLow = applies ? into[0]! : NaN;
+    const shiftHigh = applies ? into[1]! : 1;
+    const segment = Math.min(shiftHigh, probabilityAnyAboveUpper(profile, t));
+    into[0] = shiftLow;
+    into[1] = segment;
+    if (!(segment > SEGMENT_ENOUGH) || !applies) return;
+    if (!enclosureWith(table.momentsBelow(j, profile), table.momentsAbove(j), spread, x, ENCLOSED, 0)) return;
+    into[0] = Math.max(shiftLow, ENCLOSED[0]!);
+    into[1] = Math.min(segment, ENCLOSED[1]!);
   }
 
   // The shifted tails' upper bound at k (two normal tails per profile, read off the fixed grid of the normal tail:
@@ -484,40 +524,9 @@ const SHIFTED = new Float64Array(2);
 const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
-// Bounds on one profile's any-above probability at t into `into` (low NaN when there is none). Where the law has moment
-// bounds (src/scale/overflow-enclosure.ts): first the shifted tails (two normal tails), which settle a tensor far from
-// t alone; else, at a spread of a binade or more, the moment bounds (a few normal tails more, far tighter, both ways).
-// Otherwise the segment upper bound (a handful of evaluations far in the tail, where it falls fast; at a narrow spread
-// it beats the moment bounds, whose remainder grows as the spread's inverse cube), and where it leaves more than
-// SEGMENT_ENOUGH the moment bounds where the law has them. Any of them serves the window's search, which then
-// integrates where they do not decide.
+// BoundedCurves.boundsOf's moment bounds, before they are merged with the shifted tails' or the segment's
+const ENCLOSED = new Float64Array(2);
 const SEGMENT_ENOUGH = 1e-9;
-// `levels` at `at` … `at + 2` are the shift levels of the profile's count (overflow-enclosure.ts shiftLevels).
-function boundsOf(profile: MagnitudeProfile, t: number, into: Float64Array, levels: Float64Array, at: number): void {
-  const applies = enclosureApplies(profile, t);
-  if (applies) {
-    shiftBounds(Math.log2(t) - Math.log2(profile.rms), profile.log2Spread, levels[at]!, levels[at + 1]!, levels[at + 2]!, into, 0);
-    if (!(into[1]! > SEGMENT_ENOUGH)) return;
-    if (profile.log2Spread >= 1) {
-      const e = anyAboveEnclosure(profile, t);
-      if (e !== null) {
-        if (e[0] > into[0]!) into[0] = e[0];
-        if (e[1] < into[1]!) into[1] = e[1];
-        return;
-      }
-    }
-  }
-  const shiftLow = applies ? into[0]! : NaN;
-  const shiftHigh = applies ? into[1]! : 1;
-  const segment = Math.min(shiftHigh, probabilityAnyAboveUpper(profile, t));
-  into[0] = shiftLow;
-  into[1] = segment;
-  if (!(segment > SEGMENT_ENOUGH) || !applies) return;
-  const e = anyAboveEnclosure(profile, t);
-  if (e === null) return;
-  into[0] = Math.max(shiftLow, e[0]);
-  into[1] = Math.min(segment, e[1]);
-}
 
 /**
  * Overflow probability per step over all gradient tensors as they drift from their start to their end profiles: the
@@ -639,10 +648,17 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
     // profileBetween keeps the start's rms where the end's is not positive
     const l1 = end.rms > 0 ? Math.log2(end.rms) : l0;
     const law = elementLaw(start);
+    const limit = tolerance * (1 - 1e-9);
+    // the inner draw's bound first: where it passes, so does the smaller of the two (rounding keeps the order), and the
+    // outer draw's share is not needed
+    const innerHigh = (law.energyBelow(exp2(Math.min(l0 - 4 * s0, l1 - 4 * s1) - 1e-9), t) * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9);
+    if (innerHigh * (1 + 1e-5) <= limit) {
+      out[i] = 1;
+      continue;
+    }
     const outer = law.energyBelow(exp2(Math.min(l0 - 9 * s0, l1 - 9 * s1) - 1e-9), t);
-    const inner = law.energyBelow(exp2(Math.min(l0 - 4 * s0, l1 - 4 * s1) - 1e-9), t);
-    const high = Math.min(outer * (1 + 1e-12), (inner * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9));
-    if (high * (1 + 1e-5) <= tolerance * (1 - 1e-9)) out[i] = 1;
+    const high = Math.min(outer * (1 + 1e-12), innerHigh);
+    if (high * (1 + 1e-5) <= limit) out[i] = 1;
   }
   return out;
 }
