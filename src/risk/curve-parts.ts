@@ -3,6 +3,7 @@
  * (src/scale/window.ts keeps values and bounds itself). Internal to the risk and scale modules: not re-exported by
  * src/risk/index.ts.
  */
+import { pow2 } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { ProfileDrawBounds } from "./bounds.js";
 import { riskProfile, sameDistribution } from "./profile.js";
@@ -132,7 +133,7 @@ export class CurveParts implements LossScaleCurveParts {
   }
 
   overflowRiskBoundsInto(k: number, into: Float64Array, at: number): void {
-    const level = this.limits.overflowLevel * 2 ** -k;
+    const level = this.limits.overflowLevel * pow2Below(k);
     this.startBounds.anyAboveInto(level, BOTH, 2);
     if (this.same) {
       BOTH[4] = BOTH[2]!;
@@ -143,7 +144,7 @@ export class CurveParts implements LossScaleCurveParts {
   }
 
   flushedEnergyBoundsInto(k: number, into: Float64Array, at: number): void {
-    const level = this.limits.flushBound * 2 ** -k;
+    const level = this.limits.flushBound * pow2Below(k);
     // the worse of two values lies between the worse of their lower and the worse of their upper bounds
     this.startBounds.energyBelowInto(level, BOTH, 2);
     if (this.same) {
@@ -158,3 +159,9 @@ export class CurveParts implements LossScaleCurveParts {
 // the start's bounds at 2 and 3, the end's at 4 and 5, and the array-returning methods' result at 0 and 1, before
 // they are copied out
 const BOTH = new Float64Array(6);
+
+// 2^−k: from the formats' table of powers for a whole exponent (the window asks these bounds at a few exponents for
+// every tensor, and a power with a variable exponent costs a call, Math.pow), the same double 2 ** -k gives
+function pow2Below(k: number): number {
+  return Number.isInteger(k) ? pow2(-k) : 2 ** -k;
+}

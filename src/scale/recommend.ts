@@ -178,8 +178,10 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   // the shifted tails' levels depend on the counts alone: one table serves every format's curves of these profiles
   const table = levelTable(shared);
   // each tensor's bounds at the exponent last asked, for this format: one typed array for all the tensors
-  const memo = new Float64Array(MEMO_FIELDS * shared.length);
-  for (let at = 0; at < memo.length; at += MEMO_FIELDS) memo.set(MEMO_START, at);
+  // (and after them the exponent last asked of any of them and log2 of its overflow threshold: LAST_K)
+  const memo = new Float64Array(MEMO_FIELDS * shared.length + 2);
+  for (let at = 0; at < memo.length - 2; at += MEMO_FIELDS) memo.set(MEMO_START, at);
+  memo[memo.length - 2] = NaN;
   return curvePartsOf(shared, limits, (p, edgeGuessesLog2, i) => new BoundedCurves(p, edgeGuessesLog2, limits, table, i, memo));
 }
 
@@ -304,8 +306,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     if (k === memo[m + OVERFLOW_K]) return;
     const t = this.limits.overflowLevel * pow2Below(k);
     this.levelsAt();
-    // (log2 t once for both profiles: the same double boundsOf took twice per profile)
-    const tLog2 = Math.log2(t);
+    // (log2 t once per exponent for every tensor of the format, overflowLog2)
+    const tLog2 = this.overflowLog2(k, t);
     this.boundsOf(0, t, tLog2);
     memo[m + OVERFLOW_START] = PAIR[1]!;
     memo[m + OVERFLOW_START_LOW] = PAIR[0]!;
@@ -322,6 +324,19 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
 
   private levelsAt(): number {
     return this.levels.at(this.index, this.start, this.end);
+  }
+
+  // log2 of the overflow threshold t at k, kept at the end of the format's memo for the exponent last asked: the
+  // window's scans ask every tensor at one exponent in turn, and t is the same double for all of them (one Math.log2
+  // per exponent, not per tensor; the same double)
+  private overflowLog2(k: number, t: number): number {
+    const memo = this.memo;
+    const at = memo.length - 2;
+    if (memo[at] === k) return memo[at + 1]!;
+    const v = Math.log2(t);
+    memo[at] = k;
+    memo[at + 1] = v;
+    return v;
   }
 
   // Bounds on one profile's any-above probability at t into PAIR (low NaN when there is none), side 0 the start
@@ -369,8 +384,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // (overflowRiskRoughLower): a few of them settle a union bound far over the budget.
   overflowRiskRough(k: number): number {
     const t = this.limits.overflowLevel * pow2Below(k);
-    // (log2 t once for both profiles: the same double roughOf took twice)
-    const tLog2 = Math.log2(t);
+    // (log2 t once per exponent for every tensor of the format, overflowLog2: the same double roughOf took twice)
+    const tLog2 = this.overflowLog2(k, t);
     const a = this.roughOf(0, t, tLog2);
     const low = roughLowOf;
     const memo = this.memo;
@@ -416,7 +431,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   overflowRiskQuickInto(k: number, into: Float64Array): boolean {
     const t = this.limits.overflowLevel * pow2Below(k);
     if (!(t > 0)) return false;
-    const tLog2 = Math.log2(t);
+    const tLog2 = this.overflowLog2(k, t);
     if (!this.quickOf(0, t, tLog2)) return false;
     if (this.same) {
       into[0] = QUICK[0]!;
