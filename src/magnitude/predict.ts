@@ -692,7 +692,6 @@ class Phase {
     this.opSite(layer, h, input, output, this.build && makes !== "input" ? (madeId ?? prefix + makes) : undefined, true);
   }
 
-
   /** The hazard of summing a weight gradient over micro-batches and workers. */
   private gradientSumHazard(layer: GraphLayer, wg: WeightGradientMoment, weight: GraphWeight, summedQ: number, terms: number, id: string): void {
     const input = this.perMicroBatch(wg, weight);

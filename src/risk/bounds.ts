@@ -7,7 +7,7 @@ import type { MagnitudeProfile } from "../magnitude/types.js";
 import { anyOf, exp2, LN2, normalSf } from "./_math.js";
 import { elementLaw, INNER_DRAW_OUTSIDE, isConstantLike, isEmpty, lawOverDrawsBounds, nonzeroElements, type ElementLaw } from "./laws.js";
 import { energyBelow, fractionBelow, probabilityAnyAbove } from "./profile.js";
-import { capMean } from "./settle.js";
+import { capMean, DENSITY } from "./settle.js";
 
 /**
  * Bounds [low, high] on {@link energyBelow}(profile, t) from the integrand at the extreme draws and at ±4
@@ -113,7 +113,7 @@ function capMeanFast(logC: number, m: number): number {
   return v < Infinity ? v * (1 + 3e-7) : capMean(logC, m);
 }
 // ln(√(2/π)/3): E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3
-const LOG_ENERGY_DENSITY = Math.log(Math.sqrt(2 / Math.PI) / 3);
+const LOG_ENERGY_DENSITY = Math.log(DENSITY / 3);
 // the spreads at which test/risk/share-tables.test.ts holds the tables to the integral, and the room left for their
 // error (5,000 times the 2e-7 relative they are held to)
 const TABLE_SPREADS = [0.25, 8] as const;

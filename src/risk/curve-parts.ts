@@ -160,8 +160,11 @@ export class CurveParts implements LossScaleCurveParts {
 // they are copied out
 const BOTH = new Float64Array(6);
 
-// 2^−k: from the formats' table of powers for a whole exponent (the window asks these bounds at a few exponents for
-// every tensor, and a power with a variable exponent costs a call, Math.pow), the same double 2 ** -k gives
-function pow2Below(k: number): number {
+/**
+ * 2^−k: from the formats' table of powers for a whole exponent (the window and the answer's curves ask their bounds at a
+ * few exponents for every tensor, and a power with a variable exponent costs a call, Math.pow), the same double 2 ** -k
+ * gives.
+ */
+export function pow2Below(k: number): number {
   return Number.isInteger(k) ? pow2(-k) : 2 ** -k;
 }

@@ -11,19 +11,17 @@
  * magnitude laws (gaussian, half-gaussian, bounded) are bounded here; a tensor of another law, or one whose bounds do
  * not decide, is judged from its numbers as before (null from {@link decidedFindings}).
  */
+import { pow2 } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics, riskProfile } from "./profile.js";
-import { capWithin, FAR_DRAW, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
+import { capWithin, DENSITY, FAR_DRAW, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
 import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
 import { FOUND, isGradientRole, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 
-// √(2/π): a Gaussian magnitude's density is at most √(2/π)/r, so P(|x| ≤ t | r) ≤ √(2/π)·t/r and
-// E[x²; |x| ≤ t]/r² ≤ √(2/π)·(t/r)³/3 (as src/risk/settle.ts takes them)
-const DENSITY = Math.sqrt(2 / Math.PI);
 // the headroom's level is bounded 1/16 binade lower than the finding's: the predicted max is read off level tables
 // within 1e-6 binade of its search (src/risk/laws.ts), and the search within a lattice step of the crossing
 const HEADROOM_MARGIN = 1 / 16;
@@ -163,8 +161,6 @@ export class FormatDecision {
 // The most nonzero elements anyAboveWithin's quick test covers (a side with more takes the bound itself): 2^53
 const QUICK_COUNT = 2 ** 53;
 const LOG2E = Math.LOG2E;
-// 2^−k for k = 0 … 1000, exact (e^−x ≥ 2^−k wherever k ≥ x·log₂e; 2^−1000 is far above the smallest double)
-const POW2_NEG = Float64Array.from({ length: 1001 }, (_, k) => 2 ** -k);
 
 // The u² past which QUICK_COUNT·e^{−u²/2} is at most half of what `target` leaves above `far`, so that
 // far + n·e^{−u²/2} ≤ target for any n ≤ QUICK_COUNT, with room (a factor 2) for every rounding of the bound as
@@ -209,8 +205,9 @@ function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: 
   if (!(t > 0)) return false;
   const a = t / side.rms;
   const k = Math.ceil(side.m * z0 * LOG2E) + 1;
-  if (k >= 0 && k < POW2_NEG.length && side.count <= QUICK_COUNT) {
-    const low = a * (POW2_NEG[k] as number);
+  // (2^−k exact from the formats' table, e^−x ≥ 2^−k wherever k ≥ x·log₂e; 0 past the smallest double: no quick answer)
+  if (k >= 0 && side.count <= QUICK_COUNT) {
+    const low = a * pow2(-k);
     if (low * low >= quick) return true;
   }
   const u = farThreshold(a, side.m, z0);
@@ -248,7 +245,7 @@ function surelySettledOne(side: Side, t: number): boolean {
   const a = t / side.rms;
   if (!(a < 7)) return false;
   const k = Math.ceil(side.m * FAR_DRAW * LOG2E) + 1;
-  return k < POW2_NEG.length && a <= 0.3 * (POW2_NEG[k] as number);
+  return k >= 0 && a <= 0.3 * pow2(-k);
 }
 
 /**

@@ -32,7 +32,7 @@ const LOG_FAR_SHARE = Math.log(SETTLED / 4);
 const LOG_SETTLED = Math.log(SETTLED);
 // √(2/π): P(|Z| ≤ a) = erf(a/√2) ≤ √(2/π)·a, and E[Z²; |Z| ≤ a] ≤ √(2/π)·a³/3 (the density at most φ(0) = 1/√(2π)
 // on both sides)
-const DENSITY = Math.sqrt(2 / Math.PI);
+export const DENSITY = Math.sqrt(2 / Math.PI);
 const LOG_ENOUGH = Math.log(32);
 // 1/√(2π), the normal density's factor
 const INV_SQRT_2PI = 1 / Math.sqrt(2 * Math.PI);

@@ -2,11 +2,11 @@
  * The loss-scale answer for one plan: the static window in the gradient format, the pick, which tensors set
  * each edge, and — when no static scale exists — remedies ranked by their computed effect.
  */
-import { getFormat, pow2 } from "../formats/index.js";
+import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
 import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
-import { CurveParts, curvePartsOf, gradientProfiles, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
+import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
 import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
@@ -528,11 +528,6 @@ const PAIR = new Float64Array(2);
 // one profile's quick moment bounds (BoundedCurves.quickOf)
 const QUICK = new Float64Array(2);
 
-// 2^−k: exact from the formats' table of powers for a whole exponent (the curves are asked at a few exponents thousands
-// of times per answer, and a power with a variable exponent costs ~40 ns, Math.pow), the same double 2 ** -k gives
-function pow2Below(k: number): number {
-  return Number.isInteger(k) ? pow2(-k) : 2 ** -k;
-}
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing

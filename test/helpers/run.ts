@@ -9,8 +9,8 @@ export const BIN = fileURLToPath(new URL("../../bin/headroom.js", import.meta.ur
 
 /**
  * How long a spawned child may run before it is killed. spawnSync blocks the test's thread, so vitest's own timeout
- * cannot fire while it waits: without this, a child that never exits (a hang seen once under a load of 10 on two
- * cores, not reproduced) holds the whole suite until CI gives up. Far above any run the tests make (seconds).
+ * cannot fire while it waits: without this, a child that never exits (Node 20's rare deadlock at exit under load,
+ * DEVELOPERS.md) holds the whole suite until CI gives up. Far above any run the tests make (seconds).
  */
 export const CHILD_TIMEOUT_MS = 300_000;
 
