@@ -6,7 +6,7 @@
 import { pow2 } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { ProfileDrawBounds } from "./bounds.js";
-import { riskProfile, sameDistribution } from "./profile.js";
+import { sameDistribution } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
 
@@ -27,7 +27,7 @@ export interface LossScaleCurveParts {
 }
 
 /**
- * A gradient tensor's profiles in the one layout the risk functions read (riskProfile), with their extreme-draw bounds:
+ * A gradient tensor's profiles (the prediction's own objects, which the risk functions read as riskProfile's), with their extreme-draw bounds:
  * what the curves take of a tensor whatever the format's limits, made once per answer and shared by its formats (the
  * gradient format and bfloat16's remedy) and the dynamic-scale simulation's ends of the horizon.
  */
@@ -52,10 +52,12 @@ export function gradientProfiles(tensors: readonly TensorPrediction[]): Gradient
 
 /** One tensor's {@link GradientProfiles}, whatever its role. */
 export function profilesOf(tensor: TensorPrediction): GradientProfiles {
-  // the risk functions see profiles of one layout (riskProfile), whatever fields the prediction carried
+  // the prediction's own profiles serve, as the unscaled judgement takes them (src/risk/tensor.ts scaledTensor): the
+  // risk functions read only the law fields, and a riskProfile copy of each of ~4,000 profiles lived young through the
+  // whole answer, for every scavenge during it to copy
   const same = sameDistribution(tensor.start, tensor.end);
-  const start = riskProfile(tensor.start);
-  const end = same ? start : riskProfile(tensor.end);
+  const start = tensor.start;
+  const end = same ? start : tensor.end;
   const startBounds = new ProfileDrawBounds(start);
   return { tensor, start, end, same, startBounds, endBounds: same ? startBounds : new ProfileDrawBounds(end) };
 }

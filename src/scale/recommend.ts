@@ -783,7 +783,7 @@ class HorizonPoint {
   drawBounds(i: number): ProfileDrawBounds {
     let d = this.draws[i];
     if (d === undefined) {
-      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
+      // profileAt at the ends is (a riskProfile copy of) the start or end: the answer's own profiles, and their draw bounds
       const p = this.progress;
       d = p <= 0 ? this.gradients[i]!.startBounds : p >= 1 ? this.gradients[i]!.endBounds : new ProfileDrawBounds(this.profile(i));
       this.draws[i] = d;
