@@ -130,12 +130,17 @@ const TABLE_ROOM = 1e-3;
 export class ProfileDrawBounds {
   private readonly fast: boolean;
   private readonly count: number;
-  private readonly lowest: number;
-  private readonly highest: number;
-  private readonly innerLow: number = 0;
-  private readonly innerHigh: number = 0;
   private readonly law: ElementLaw;
-  constructor(private readonly profile: MagnitudeProfile) {
+  /**
+   * `draws` at `place` … `place + 3` take the draws' scales at z = −9, 9, −4, 4: a typed array the caller shares among many
+   * profiles (gradientProfiles: one for an answer's ~4,000), where four numbers of the object's own were a boxed double
+   * each, for the collector to copy for as long as the answer lives; by default one of its own
+   */
+  constructor(
+    private readonly profile: MagnitudeProfile,
+    private readonly draws: Float64Array = new Float64Array(DRAWS),
+    private readonly place = 0,
+  ) {
     const shape = profile.shape;
     const s = profile.log2Spread;
     this.fast =
@@ -153,12 +158,12 @@ export class ProfileDrawBounds {
       above *= up;
       below *= down;
       if (m === 4) {
-        this.innerHigh = rms * above;
-        this.innerLow = rms * below;
+        draws[place + INNER_HIGH] = rms * above;
+        draws[place + INNER_LOW] = rms * below;
       }
     }
-    this.highest = rms * above;
-    this.lowest = rms * below;
+    draws[place + HIGHEST] = rms * above;
+    draws[place + LOWEST] = rms * below;
   }
 
   /** {@link probabilityAnyAboveBounds}(profile, t) */
@@ -179,7 +184,9 @@ export class ProfileDrawBounds {
       return;
     }
     // laws.ts drawBounds on anyOf(above(r, t), n), the draws beyond ±9 allowed up to 1
-    const b = anyOf(this.law.above(this.highest, t), this.count);
+    const draws = this.draws;
+    const p = this.place;
+    const b = anyOf(this.law.above(draws[p + HIGHEST]!, t), this.count);
     // 0 at the highest draw is a tail of 0 (anyOf is 0 only for that): erfc's exponential underflowed, and it does
     // further out, at the lowest draw, too; so the pair is [0, 0] as below, without evaluating it (the window's
     // searches meet this for most tensors at their extreme exponents)
@@ -187,7 +194,7 @@ export class ProfileDrawBounds {
       into[at] = into[at + 1] = 0;
       return;
     }
-    const a = anyOf(this.law.above(this.lowest, t), this.count);
+    const a = anyOf(this.law.above(draws[p + LOWEST]!, t), this.count);
     if (a === b) {
       into[at] = into[at + 1] = Math.min(1, Math.max(0, a));
       return;
@@ -212,8 +219,10 @@ export class ProfileDrawBounds {
     }
     // laws.ts drawBounds on energyBelow(r, t) with the inner draws
     const law = this.law;
-    const a = law.energyBelow(this.lowest, t);
-    const b = law.energyBelow(this.highest, t);
+    const draws = this.draws;
+    const p = this.place;
+    const a = law.energyBelow(draws[p + LOWEST]!, t);
+    const b = law.energyBelow(draws[p + HIGHEST]!, t);
     if (a === b) {
       into[at] = into[at + 1] = Math.min(1, Math.max(0, a));
       return;
@@ -225,8 +234,8 @@ export class ProfileDrawBounds {
       into[at + 1] = outerHigh;
       return;
     }
-    const c = law.energyBelow(this.innerLow, t);
-    const d = law.energyBelow(this.innerHigh, t);
+    const c = law.energyBelow(draws[p + INNER_LOW]!, t);
+    const d = law.energyBelow(draws[p + INNER_HIGH]!, t);
     const inside = 1 - INNER_DRAW_OUTSIDE;
     const low = Math.max(0, Math.min(c, d) * inside * (1 - 1e-9));
     const high = Math.min(1, (Math.max(c, d) * inside + INNER_DRAW_OUTSIDE) * (1 + 1e-9));
@@ -234,6 +243,14 @@ export class ProfileDrawBounds {
     into[at + 1] = Math.min(outerHigh, high);
   }
 }
+
+// a ProfileDrawBounds' draws at its place in the shared array (z = −9, 9, −4, 4), and how many numbers it takes there
+const LOWEST = 0;
+const HIGHEST = 1;
+const INNER_LOW = 2;
+const INNER_HIGH = 3;
+/** the numbers a {@link ProfileDrawBounds} takes of its shared array */
+export const DRAWS = 4;
 
 // the bounds of one call to ProfileDrawBounds' array-returning methods, before they are copied out
 const SCRATCH = new Float64Array(2);

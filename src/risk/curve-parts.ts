@@ -5,7 +5,7 @@
  */
 import { pow2 } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
-import { ProfileDrawBounds } from "./bounds.js";
+import { DRAWS, ProfileDrawBounds } from "./bounds.js";
 import { sameDistribution } from "./profile.js";
 import { GRADIENT_ROLES } from "./tensor.js";
 import type { RangeLimits } from "./types.js";
@@ -43,23 +43,34 @@ export interface GradientProfiles {
 
 /** The {@link GradientProfiles} of every gradient tensor (activation and weight gradients) with a nonzero rms, in order. */
 export function gradientProfiles(tensors: readonly TensorPrediction[]): GradientProfiles[] {
+  let n = 0;
+  for (const tensor of tensors) if (isCurved(tensor)) n++;
+  // every profile's draws in one array (ProfileDrawBounds), start and end side by side
+  const draws = new Float64Array(2 * DRAWS * n);
   const out: GradientProfiles[] = [];
-  for (const tensor of tensors) {
-    if (GRADIENT_ROLES.includes(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0)) out.push(profilesOf(tensor));
-  }
+  for (const tensor of tensors) if (isCurved(tensor)) out.push(profilesIn(tensor, draws, 2 * DRAWS * out.length));
   return out;
+}
+
+function isCurved(tensor: TensorPrediction): boolean {
+  return GRADIENT_ROLES.includes(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0);
 }
 
 /** One tensor's {@link GradientProfiles}, whatever its role. */
 export function profilesOf(tensor: TensorPrediction): GradientProfiles {
+  return profilesIn(tensor, new Float64Array(2 * DRAWS), 0);
+}
+
+// profilesOf with the draws of its start at `draws[at …]` and of its end after them
+function profilesIn(tensor: TensorPrediction, draws: Float64Array, at: number): GradientProfiles {
   // the prediction's own profiles serve, as the unscaled judgement takes them (src/risk/tensor.ts scaledTensor): the
   // risk functions read only the law fields, and a riskProfile copy of each of ~4,000 profiles lived young through the
   // whole answer, for every scavenge during it to copy
   const same = sameDistribution(tensor.start, tensor.end);
   const start = tensor.start;
   const end = same ? start : tensor.end;
-  const startBounds = new ProfileDrawBounds(start);
-  return { tensor, start, end, same, startBounds, endBounds: same ? startBounds : new ProfileDrawBounds(end) };
+  const startBounds = new ProfileDrawBounds(start, draws, at);
+  return { tensor, start, end, same, startBounds, endBounds: same ? startBounds : new ProfileDrawBounds(end, draws, at + DRAWS) };
 }
 
 /**

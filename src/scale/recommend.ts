@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
+import { DRAWS, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
@@ -780,12 +780,19 @@ class HorizonPoint {
     this.gaussian = ends.made().gaussian;
   }
 
+  // the draws' scales of the profiles made here, in one array (ProfileDrawBounds)
+  private drawScales: Float64Array | undefined;
   drawBounds(i: number): ProfileDrawBounds {
     let d = this.draws[i];
     if (d === undefined) {
       // profileAt at the ends is (a riskProfile copy of) the start or end: the answer's own profiles, and their draw bounds
       const p = this.progress;
-      d = p <= 0 ? this.gradients[i]!.startBounds : p >= 1 ? this.gradients[i]!.endBounds : new ProfileDrawBounds(this.profile(i));
+      d =
+        p <= 0
+          ? this.gradients[i]!.startBounds
+          : p >= 1
+            ? this.gradients[i]!.endBounds
+            : new ProfileDrawBounds(this.profile(i), (this.drawScales ??= new Float64Array(DRAWS * this.n)), DRAWS * i);
       this.draws[i] = d;
     }
     return d;

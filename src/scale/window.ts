@@ -1032,13 +1032,19 @@ class WindowSearch {
       const i = order[r] as number;
       if (active[i] === 0 || this.tolerated(edge, i, table)) continue;
       if (edge === hi) return null;
-      const guess = (this.tensors[i] as ScaledTensorCurves).edgeGuessesLog2?.flush ?? edge + 1;
-      const own = firstTrue(edge + 1, hi, (k) => this.tolerated(k, i), guess);
+      const own = this.ownFlushEdge(edge, hi, i);
       if (own === null) return null;
       edge = own;
       table = this.table("flush", edge);
     }
     return edge;
+  }
+
+  // tensor i's own flush edge above `edge` (a gallop from its guess); apart from flushEdge's loop, whose body would
+  // otherwise hold i in a context made at every step for the closure, though few steps make it
+  private ownFlushEdge(edge: number, hi: number, i: number): number | null {
+    const guess = (this.tensors[i] as ScaledTensorCurves).edgeGuessesLog2?.flush ?? edge + 1;
+    return firstTrue(edge + 1, hi, (k) => this.tolerated(k, i), guess);
   }
 }
 
