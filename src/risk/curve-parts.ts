@@ -97,6 +97,7 @@ export function curvePartsOf<T>(
 ): T[] {
   const overflowLog2 = Math.log2(limits.overflowLevel);
   const flushLog2 = Math.log2(limits.flushBound);
+  const guesses = new Map<number, { overflow: number; flush: number }>();
   return profiles.map((p, i) => {
     const { start, end } = p;
     // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
@@ -104,33 +105,47 @@ export function curvePartsOf<T>(
     const rmsLog2 = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
     const lowRmsLog2 = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
     const spread = Math.max(start.log2Spread, end.log2Spread, 0);
-    const edgeGuessesLog2 = {
-      overflow: Math.floor(overflowLog2 - rmsLog2 - 2 - 3 * spread),
-      flush: Math.ceil(flushLog2 - lowRmsLog2 + 4 + 3 * spread),
-    };
+    const overflow = Math.floor(overflowLog2 - rmsLog2 - 2 - 3 * spread);
+    const flush = Math.ceil(flushLog2 - lowRmsLog2 + 4 + 3 * spread);
+    // one object per pair of guesses, shared by the tensors that have it (a stack of alike layers has a few pairs for
+    // thousands of tensors; nothing writes the guesses), keyed exactly where both are whole numbers of modest size (and
+    // not −0, which a key would take for 0)
+    const key =
+      Math.abs(overflow) < GUESS_KEY && Math.abs(flush) < GUESS_KEY && !Object.is(overflow, -0) && !Object.is(flush, -0) ? overflow * 2 * GUESS_KEY + flush : NaN;
+    let edgeGuessesLog2 = key === key ? guesses.get(key) : undefined;
+    if (edgeGuessesLog2 === undefined) {
+      edgeGuessesLog2 = { overflow, flush };
+      if (key === key) guesses.set(key, edgeGuessesLog2);
+    }
     return make(p, edgeGuessesLog2, i);
   });
 }
+// the guesses' key: overflow·2^21 + flush, exact (and one key per pair) for whole guesses under 2^20 in size
+const GUESS_KEY = 2 ** 20;
 
-/** One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles). */
+/**
+ * One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles), read through that object
+ * rather than copied onto this one: an answer keeps one of these per tensor and format (~4,000) alive through its
+ * searches, and each field more is bytes every scavenge during them copies.
+ */
 export class CurveParts implements LossScaleCurveParts {
-  readonly id: string;
-  readonly start: MagnitudeProfile;
-  readonly end: MagnitudeProfile;
-  readonly same: boolean;
-  private readonly startBounds: ProfileDrawBounds;
-  private readonly endBounds: ProfileDrawBounds;
   constructor(
-    profiles: GradientProfiles,
+    protected readonly parts: GradientProfiles,
     readonly edgeGuessesLog2: { overflow: number; flush: number },
     protected readonly limits: RangeLimits,
-  ) {
-    this.id = profiles.tensor.id;
-    this.start = profiles.start;
-    this.end = profiles.end;
-    this.same = profiles.same;
-    this.startBounds = profiles.startBounds;
-    this.endBounds = profiles.endBounds;
+  ) {}
+
+  get id(): string {
+    return this.parts.tensor.id;
+  }
+  get start(): MagnitudeProfile {
+    return this.parts.start;
+  }
+  get end(): MagnitudeProfile {
+    return this.parts.end;
+  }
+  get same(): boolean {
+    return this.parts.same;
   }
 
   // every law scales with the profile, bound included: the profile scaled by 2^k against t is the profile against
@@ -147,11 +162,12 @@ export class CurveParts implements LossScaleCurveParts {
 
   overflowRiskBoundsInto(k: number, into: Float64Array, at: number): void {
     const level = this.limits.overflowLevel * pow2Below(k);
-    this.startBounds.anyAboveInto(level, BOTH, 2);
-    if (this.same) {
+    const parts = this.parts;
+    parts.startBounds.anyAboveInto(level, BOTH, 2);
+    if (parts.same) {
       BOTH[4] = BOTH[2]!;
       BOTH[5] = BOTH[3]!;
-    } else this.endBounds.anyAboveInto(level, BOTH, 4);
+    } else parts.endBounds.anyAboveInto(level, BOTH, 4);
     into[at] = Math.max(BOTH[2]!, BOTH[4]!);
     into[at + 1] = Math.max(BOTH[3]!, BOTH[5]!);
   }
@@ -159,11 +175,12 @@ export class CurveParts implements LossScaleCurveParts {
   flushedEnergyBoundsInto(k: number, into: Float64Array, at: number): void {
     const level = this.limits.flushBound * pow2Below(k);
     // the worse of two values lies between the worse of their lower and the worse of their upper bounds
-    this.startBounds.energyBelowInto(level, BOTH, 2);
-    if (this.same) {
+    const parts = this.parts;
+    parts.startBounds.energyBelowInto(level, BOTH, 2);
+    if (parts.same) {
       BOTH[4] = BOTH[2]!;
       BOTH[5] = BOTH[3]!;
-    } else this.endBounds.energyBelowInto(level, BOTH, 4);
+    } else parts.endBounds.energyBelowInto(level, BOTH, 4);
     into[at] = Math.max(BOTH[2]!, BOTH[4]!);
     into[at + 1] = Math.max(BOTH[3]!, BOTH[5]!);
   }

@@ -282,8 +282,6 @@ let roughLowOf = 0;
 // in the format's memo array. One object per tensor, its methods shared.
 class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   readonly flushedEnergyGrowth: number | undefined;
-  // this tensor's offset in `memo`
-  private readonly m: number;
 
   constructor(
     profiles: GradientProfiles,
@@ -295,8 +293,12 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     private readonly memo: Float64Array,
   ) {
     super(profiles, edgeGuessesLog2, limits);
-    this.m = MEMO_FIELDS * index;
-    this.flushedEnergyGrowth = growsAtMostEightfold(this.start) && growsAtMostEightfold(this.end) ? FLUSH_GROWTH : undefined;
+    this.flushedEnergyGrowth = growsAtMostEightfold(profiles.start) && growsAtMostEightfold(profiles.end) ? FLUSH_GROWTH : undefined;
+  }
+
+  // this tensor's offset in `memo` (worked out, not kept: a field more on each of ~4,000 objects)
+  private get m(): number {
+    return MEMO_FIELDS * this.index;
   }
 
   // each profile's upper bound at k: the moment bounds where the law has them (both ends kept), else the segment bound
@@ -311,7 +313,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     this.boundsOf(0, t, tLog2);
     memo[m + OVERFLOW_START] = PAIR[1]!;
     memo[m + OVERFLOW_START_LOW] = PAIR[0]!;
-    if (this.same) {
+    if (this.parts.same) {
       memo[m + OVERFLOW_END] = memo[m + OVERFLOW_START]!;
       memo[m + OVERFLOW_END_LOW] = memo[m + OVERFLOW_START_LOW]!;
     } else {
@@ -323,7 +325,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   }
 
   private levelsAt(): number {
-    return this.levels.at(this.index, this.start, this.end);
+    return this.levels.at(this.index, this.parts.start, this.parts.end);
   }
 
   // log2 of the overflow threshold t at k, kept at the end of the format's memo for the exponent last asked: the
@@ -352,7 +354,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const table = this.levels;
     const j = 2 * this.index + side;
     const base = 6 * this.index + 3 * side;
-    const profile = side === 0 ? this.start : this.end;
+    const profile = side === 0 ? this.parts.start : this.parts.end;
     const into = PAIR;
     const applies = table.applies[j] === 1 && t > 0 && !(t > table.bound[j]!);
     const x = tLog2 - table.rmsLog2[j]!;
@@ -390,7 +392,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const low = roughLowOf;
     const memo = this.memo;
     const m = this.m;
-    if (a < 1 && !this.same) {
+    if (a < 1 && !this.parts.same) {
       const b = this.roughOf(1, t, tLog2);
       // the worse of two values is at least either's lower bound
       memo[m + ROUGH_LOW] = Math.max(low, roughLowOf);
@@ -433,7 +435,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     if (!(t > 0)) return false;
     const tLog2 = this.overflowLog2(k, t);
     if (!this.quickOf(0, t, tLog2)) return false;
-    if (this.same) {
+    if (this.parts.same) {
       into[0] = QUICK[0]!;
       into[1] = QUICK[1]!;
       return true;
@@ -454,7 +456,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const table = this.levels;
     const j = 2 * this.index + side;
     if (table.applies[j] === 0 || t > table.bound[j]!) return false;
-    const below = table.momentsBelow(j, side === 0 ? this.start : this.end);
+    const below = table.momentsBelow(j, side === 0 ? this.parts.start : this.parts.end);
     return enclosureQuick(below, table.momentsAbove(j), table.spread[j]!, tLog2 - table.rmsLog2[j]!, QUICK, 0);
   }
 
@@ -463,8 +465,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const m = this.m;
     if (k === memo[m + FLUSH_K]) return;
     const t = this.limits.flushBound * pow2Below(k);
-    memo[m + FLUSH_START] = energyBelowUpper(this.start, t);
-    memo[m + FLUSH_END] = this.same ? memo[m + FLUSH_START]! : energyBelowUpper(this.end, t);
+    memo[m + FLUSH_START] = energyBelowUpper(this.parts.start, t);
+    memo[m + FLUSH_END] = this.parts.same ? memo[m + FLUSH_START]! : energyBelowUpper(this.parts.end, t);
     memo[m + FLUSH_K] = k;
   }
 
@@ -473,26 +475,26 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // integrated again (max is symmetric, so the order of the two does not matter).
   overflowRisk(k: number): number {
     const level = this.limits.overflowLevel * pow2Below(k);
-    if (this.same) return probabilityAnyAbove(this.start, level);
+    if (this.parts.same) return probabilityAnyAbove(this.parts.start, level);
     this.overflowUppers(k);
     const start = this.memo[this.m + OVERFLOW_START]!;
     const end = this.memo[this.m + OVERFLOW_END]!;
     const startFirst = start >= end;
-    const a = probabilityAnyAbove(startFirst ? this.start : this.end, level);
+    const a = probabilityAnyAbove(startFirst ? this.parts.start : this.parts.end, level);
     if ((startFirst ? end : start) <= a) return a;
-    return Math.max(a, probabilityAnyAbove(startFirst ? this.end : this.start, level));
+    return Math.max(a, probabilityAnyAbove(startFirst ? this.parts.end : this.parts.start, level));
   }
 
   flushedEnergy(k: number): number {
     const bound = this.limits.flushBound * pow2Below(k);
-    if (this.same) return energyBelow(this.start, bound);
+    if (this.parts.same) return energyBelow(this.parts.start, bound);
     this.flushUppers(k);
     const start = this.memo[this.m + FLUSH_START]!;
     const end = this.memo[this.m + FLUSH_END]!;
     const startFirst = start >= end;
-    const a = energyBelow(startFirst ? this.start : this.end, bound);
+    const a = energyBelow(startFirst ? this.parts.start : this.parts.end, bound);
     if ((startFirst ? end : start) <= a) return a;
-    return Math.max(a, energyBelow(startFirst ? this.end : this.start, bound));
+    return Math.max(a, energyBelow(startFirst ? this.parts.end : this.parts.start, bound));
   }
 
   overflowRiskUpper(k: number): number {
