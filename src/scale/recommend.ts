@@ -787,7 +787,7 @@ class HorizonPoint {
   drawBounds(i: number): ProfileDrawBounds {
     let d = this.draws[i];
     if (d === undefined) {
-      // profileAt at the ends is (a riskProfile copy of) the start or end: the answer's own profiles, and their draw bounds
+      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
       const p = this.progress;
       d =
         p <= 0
