@@ -274,7 +274,8 @@ const MEMO_FIELDS = 10;
 // nothing asked yet
 const MEMO_START = Float64Array.of(NaN, 1, 1, NaN, NaN, NaN, 1, 1, NaN, 0);
 // roughOf's lower bound of the profile it last bounded (read at once by its caller)
-let roughLowOf = 0;
+// (a typed array's slot: a module variable boxed each double stored, one per rough bound)
+const ROUGH_LOW_OF = new Float64Array(1);
 
 // One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
 // them, not one more per tensor and format), and each profile's segment upper bounds at the exponent last asked (the
@@ -389,13 +390,13 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     // (log2 t once per exponent for every tensor of the format, overflowLog2: the same double roughOf took twice)
     const tLog2 = this.overflowLog2(k, t);
     const a = this.roughOf(0, t, tLog2);
-    const low = roughLowOf;
+    const low = ROUGH_LOW_OF[0]!;
     const memo = this.memo;
     const m = this.m;
     if (a < 1 && !this.parts.same) {
       const b = this.roughOf(1, t, tLog2);
       // the worse of two values is at least either's lower bound
-      memo[m + ROUGH_LOW] = Math.max(low, roughLowOf);
+      memo[m + ROUGH_LOW] = Math.max(low, ROUGH_LOW_OF[0]!);
       memo[m + ROUGH_K] = k;
       return Math.max(a, b);
     }
@@ -417,12 +418,12 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const table = this.levels;
     const j = 2 * this.index + side;
     if (table.applies[j] === 0 || !(t > 0) || t > table.bound[j]!) {
-      roughLowOf = 0;
+      ROUGH_LOW_OF[0] = 0;
       return 1;
     }
     const levels = table.levels;
     shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
-    roughLowOf = PAIR[0]!;
+    ROUGH_LOW_OF[0] = PAIR[0]!;
     return PAIR[1]!;
   }
 
@@ -763,11 +764,14 @@ class ShiftEnds {
  */
 class HorizonPoint {
   readonly n: number;
-  private readonly profiles: (MagnitudeProfile | undefined)[];
+  // the profiles made here, and their extreme-draw bounds, each made on first use; none at the horizon's ends, where
+  // the answer's own serve (an array of every tensor per point otherwise)
+  private profiles: (MagnitudeProfile | undefined)[] | undefined;
+  private draws: (ProfileDrawBounds | undefined)[] | undefined;
+  // the draws' scales of the profiles made here, in one array (ProfileDrawBounds)
+  private drawScales: Float64Array | undefined;
   /** per tensor 1 when its law is Gaussian with 16 elements or more (it has moment bounds), read off its start */
   readonly gaussian: Uint8Array;
-  // each profile's extreme-draw bounds, made on first use (at the horizon's ends, the answer's own)
-  private readonly draws: (ProfileDrawBounds | undefined)[];
 
   constructor(
     private readonly gradients: readonly GradientProfiles[],
@@ -775,27 +779,20 @@ class HorizonPoint {
     // what the shifted-tail bounds take of the start and end profiles, shared by every point
     private readonly ends: ShiftEnds,
   ) {
-    const n = gradients.length;
-    this.n = n;
-    this.profiles = new Array<MagnitudeProfile | undefined>(n);
-    this.draws = new Array<ProfileDrawBounds | undefined>(n);
+    this.n = gradients.length;
     this.gaussian = ends.made().gaussian;
   }
 
-  // the draws' scales of the profiles made here, in one array (ProfileDrawBounds)
-  private drawScales: Float64Array | undefined;
   drawBounds(i: number): ProfileDrawBounds {
-    let d = this.draws[i];
+    // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
+    const p = this.progress;
+    if (p <= 0) return this.gradients[i]!.startBounds;
+    if (p >= 1) return this.gradients[i]!.endBounds;
+    const draws = (this.draws ??= new Array<ProfileDrawBounds | undefined>(this.n));
+    let d = draws[i];
     if (d === undefined) {
-      // profileAt at the ends is riskProfile of the start or end: the answer's own views, and their draw bounds
-      const p = this.progress;
-      d =
-        p <= 0
-          ? this.gradients[i]!.startBounds
-          : p >= 1
-            ? this.gradients[i]!.endBounds
-            : new ProfileDrawBounds(this.profile(i), (this.drawScales ??= new Float64Array(DRAWS * this.n)), DRAWS * i);
-      this.draws[i] = d;
+      d = new ProfileDrawBounds(this.profile(i), (this.drawScales ??= new Float64Array(DRAWS * this.n)), DRAWS * i);
+      draws[i] = d;
     }
     return d;
   }
@@ -920,12 +917,15 @@ class HorizonPoint {
   }
 
   profile(i: number): MagnitudeProfile {
-    let p = this.profiles[i];
+    const g = this.gradients[i]!;
+    const progress = this.progress;
+    if (progress <= 0) return g.start;
+    if (progress >= 1) return g.end;
+    const profiles = (this.profiles ??= new Array<MagnitudeProfile | undefined>(this.n));
+    let p = profiles[i];
     if (p === undefined) {
-      const g = this.gradients[i]!;
-      const progress = this.progress;
-      p = progress <= 0 ? g.start : progress >= 1 ? g.end : profileBetween(g.start, g.end, progress);
-      this.profiles[i] = p;
+      p = profileBetween(g.start, g.end, progress);
+      profiles[i] = p;
     }
     return p;
   }
