@@ -17,7 +17,7 @@ import { normalSf, normalUpperQuantile } from "../numeric/normal.js";
 import { LN2 } from "./_math.js";
 import { energyBelow, fractionBelow, profileStatistics, riskProfile } from "./profile.js";
 import { capWithin, DENSITY, FAR_DRAW, farThreshold, overflowRiskOf, settledBelow, settledEnergyBelow, UNSETTLED } from "./settle.js";
-import { gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
+import { gaussianNoiseAbove, gaussianNoiseWithin, subnormalNoise, subnormalNoiseLimit } from "./subnormal-noise.js";
 import { overflowAtRiskThreshold } from "./tensor.js";
 import { FOUND, isGradientRole, liftRemedy, NO_FINDINGS, noLiftRemedy, overflowFinding, overflowRiskFinding, plainRemedy, subnormalFinding } from "./tensor-finding.js";
 import type { Finding, FindingKind, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -491,12 +491,15 @@ function energyPast(side: Side, d: FormatDecision): number {
 }
 
 // The side's subnormal noise as settledRisk reports it where it may pass the limit, else −1: by the bound at half the
-// limit, then by the noise before the shares that may zero it (a share of subnormal elements of 0, unsettled)
-function noisePast(side: Side, d: FormatDecision): number {
+// limit, then by the noise before the shares that may zero it (a share of subnormal elements of 0, unsettled). With
+// `unworked`, a noise that its lower bound puts at twice the limit or more is not worked out: NOISE_UNWORKED stands for
+// it (past the limit), where the shares do not zero it.
+function noisePast(side: Side, d: FormatDecision, unworked: boolean): number {
   if (side.count === 0) return -1;
   const limits = d.limits;
-  if (boundsHold(side, limits) && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
-  const noise = subnormalNoise(side.law(), limits);
+  const holds = boundsHold(side, limits);
+  if (holds && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
+  const noise = unworked && holds && noiseSurelyPast(side, d) ? NOISE_UNWORKED : subnormalNoise(side.law(), limits);
   if (noise <= d.noiseLimit) return -1;
   settle(side, limits);
   if (side.settled) return noise;
@@ -507,6 +510,21 @@ function noisePast(side: Side, d: FormatDecision): number {
   if (flushedFarUnder(side, limits, belowNormal)) return noise;
   return Math.max(0, belowNormal - flushedShare(side, limits)) === 0 ? 0 : noise;
 }
+
+// What noisePast returns for a noise past its limit that it did not work out (countedFindings works it out when read)
+const NOISE_UNWORKED = Infinity;
+
+// Whether the side's subnormal noise as worked out (src/risk/subnormal-noise.ts tilted) is past the limit, by its lower
+// bound at twice the limit: at spreads of 1/2 to 8 binades the two shares it takes are read off the rows, each within
+// 2e-7 of its integral (README), which the bound's least mass (1e-3) and that factor 2 leave far inside; the noise is
+// capped at 1, past a limit under 1/2
+function noiseSurelyPast(side: Side, d: FormatDecision): boolean {
+  const m = side.m;
+  return m >= ROWS_LOWEST_M && m <= ROWS_HIGHEST_M && d.noiseLimit < 0.5 && gaussianNoiseAbove(side.rms, m, side.bound, d.limits, 2 * d.noiseLimit);
+}
+// the spreads (as S·ln 2) whose Gaussian shares below a threshold come off the rows at every share (src/risk/laws.ts)
+const ROWS_LOWEST_M = 0.5 * LN2;
+const ROWS_HIGHEST_M = 8 * LN2;
 
 // Whether the side's flushed share, as worked out, is surely under `below` (a number the share below the smallest
 // normal, as worked out, is at least), so that its subnormal share is positive without the flushed share: by the bound
@@ -590,9 +608,75 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
   const flushValue = Math.max(flushedPast(first, d), same ? -1 : flushedPast(last, d));
   const flushed = grade(flushValue, t.flushedAtRisk, t.flushedFails);
   if (flushed !== null) FOUND[found++] = counted(subject, d, "flushed-values", flushed, flushValue, flushed === "fails" ? t.flushedFails : t.flushedAtRisk);
-  const noise = Math.max(noisePast(first, d), same ? -1 : noisePast(last, d));
-  if (noise > d.noiseLimit) FOUND[found++] = counted(subject, d, "subnormal-values", "at-risk", noise, d.noiseLimit);
+  // the end first (a loss scale's noisy gradients are most often noisy there): where it is past the limit the start's
+  // noise is worked out only if the finding's value is read, as is a noise its lower bound puts past the limit
+  const lastNoise = noisePast(last, d, true);
+  if (lastNoise > d.noiseLimit) {
+    FOUND[found++] =
+      same && lastNoise !== NOISE_UNWORKED ? counted(subject, d, "subnormal-values", "at-risk", lastNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, last.source, lastNoise, same ? null : first.source);
+  } else if (!same) {
+    // the end's noise within the limit: the value is the start's
+    const firstNoise = noisePast(first, d, true);
+    if (firstNoise > d.noiseLimit) {
+      FOUND[found++] = firstNoise !== NOISE_UNWORKED ? counted(subject, d, "subnormal-values", "at-risk", firstNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, first.source, firstNoise, null);
+    }
+  }
   return found;
+}
+
+/**
+ * A counted subnormal-noise finding whose value (the larger of the sides' noise, as settledRisk reports it) is worked
+ * out when first read: a weighed scale's counts read only its kind and severity. The fields and their order are
+ * counted()'s, the value a getter on the prototype (JSON.stringify writes it in its place).
+ */
+class CountedNoise implements Finding {
+  readonly format: Finding["format"];
+  readonly subject: string;
+  readonly source = "tensor" as const;
+  readonly kind = "subnormal-values" as const;
+  readonly severity = "at-risk" as const;
+  readonly threshold: number;
+  readonly sentence = "";
+  readonly #decision: FormatDecision;
+  readonly #factor: number;
+  // a side past the limit, before the factor, and its noise as noisePast gave it (NOISE_UNWORKED: to be worked out)
+  readonly #side: MagnitudeProfile | null;
+  readonly #noise: number;
+  // the other side, whose noise is still to be worked out for the value (null: none, or not a part of it)
+  readonly #other: MagnitudeProfile | null;
+  #value = NaN;
+
+  constructor(subject: string, d: FormatDecision, factor: number, side: MagnitudeProfile | null, noise: number, other: MagnitudeProfile | null) {
+    this.format = d.limits.format;
+    this.subject = subject;
+    this.threshold = d.noiseLimit;
+    this.#decision = d;
+    this.#factor = factor;
+    this.#side = side;
+    this.#noise = noise;
+    this.#other = other;
+  }
+
+  get value(): number {
+    if (this.#value !== this.#value) {
+      const d = this.#decision;
+      let value = this.#noise === NOISE_UNWORKED ? workedNoise(this.#side as MagnitudeProfile, this.#factor, d) : this.#noise;
+      if (this.#other !== null) value = Math.max(value, workedNoise(this.#other, this.#factor, d));
+      this.#value = value;
+    }
+    return this.#value;
+  }
+
+  toJSON(): Omit<Finding, "at"> {
+    return { format: this.format, subject: this.subject, source: this.source, kind: this.kind, severity: this.severity, value: this.value, threshold: this.threshold, sentence: this.sentence };
+  }
+}
+
+// a side's noise as noisePast works it out, on a side of its own (the decision's two are the next tensor's by then)
+function workedNoise(profile: MagnitudeProfile, factor: number, d: FormatDecision): number {
+  const side = new Side();
+  side.read(profile, factor);
+  return noisePast(side, d, false);
 }
 
 // a side's headroom as settledRisk reports it
