@@ -7,7 +7,7 @@ import { FOUND } from "../../src/risk/tensor-finding.js";
 import { capWithin } from "../../src/risk/settle.js";
 import { DEFAULT_THRESHOLDS } from "../../src/risk/catalogue.js";
 import { judgePrediction, limitsFor, planFor } from "../../src/risk/judge.js";
-import { noiseAtMost, noiseWithin, subnormalNoise } from "../../src/risk/subnormal-noise.js";
+import { gaussianNoiseAbove, noiseAtMost, noiseWithin, subnormalNoise, subnormalNoiseLimit } from "../../src/risk/subnormal-noise.js";
 import { riskProfile } from "../../src/risk/profile.js";
 import { lossScaleFactor, tensorFormatRisk, tensorStatistics, type TensorRiskOptions } from "../../src/risk/tensor.js";
 import type { Finding, RangeLimits, RiskThresholds } from "../../src/risk/types.js";
@@ -373,6 +373,54 @@ describe("findings that are only counted", () => {
     expect(noisy).toBeGreaterThan(100);
   });
 
+  it("count a subnormal noise whose limit sits at or near half its value or its value itself as the numbers do", () => {
+    // the count takes a side as past its limit without its noise where a lower bound puts the noise at twice the limit
+    // or more: limits just above and below the worse side's noise, and just above and below half of it (where that
+    // bound meets its own target), are where a bound that decided wrongly would count a finding the numbers do not
+    // give, or miss one; the value, worked out when read, is the numbers' too, in the finding's JSON as well
+    let lazy = 0;
+    let past = 0;
+    let within = 0;
+    fc.assert(
+      fc.property(
+        ...NOISE_BAND,
+        fc.double({ min: -4, max: 8, noNaN: true }),
+        fc.boolean(),
+        fc.constantFrom(-1e-6, 1e-6, -1e-3, 1e-3, -1 - 1e-6, -1 + 1e-6, -1 - 1e-3, -1 + 1e-3, -2, -4),
+        (role, limits, low, spread, moved, same, off) => {
+          const start: MagnitudeProfile = { elements: 65536, zeroFraction: 0, shape: "gaussian", rms: 2 ** low, log2Spread: spread };
+          const end = same ? start : riskProfile(start, 2 ** moved);
+          const tensor = { id: `dense-1/${role}`, layer: "dense-1", role, start, end } as unknown as TensorPrediction;
+          const base: TensorRiskOptions = { judged: true, perTensorScaling: false, thresholds: DEFAULT_THRESHOLDS, countOnly: true };
+          const noise = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, DEFAULT_THRESHOLDS), base).worst.subnormalNoise;
+          const atRisk = noise * 2 ** off;
+          // a limit the format's own rounding noise does not replace (subnormalNoiseLimit)
+          fc.pre(noise > 0 && subnormalNoiseLimit(limits, atRisk) === atRisk);
+          const t: RiskThresholds = { ...DEFAULT_THRESHOLDS, subnormalNoiseAtRisk: atRisk };
+          const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), { ...base, thresholds: t }).findings;
+          const n = countedFindings(tensor, tensor.start, tensor.end, same, new FormatDecision(limits, t));
+          const found = FOUND.slice(0, n);
+          expect(found.map(countedPart)).toEqual(full.map(countedPart));
+          const noisy = found.find((f) => f.kind === "subnormal-values");
+          if (noisy === undefined) {
+            within++;
+            return;
+          }
+          past++;
+          if (Object.getOwnPropertyDescriptor(noisy, "value") === undefined) lazy++;
+          const expected = full.find((f) => f.kind === "subnormal-values") as Finding;
+          const { at: _at, ...plain } = { ...expected, sentence: "" };
+          expect(JSON.stringify(noisy)).toBe(JSON.stringify(plain));
+        },
+      ),
+      { numRuns: 1500 },
+    );
+    // both sides of the limit met, and values worked out when read
+    expect(past).toBeGreaterThan(200);
+    expect(within).toBeGreaterThan(200);
+    expect(lazy).toBeGreaterThan(100);
+  });
+
   it("leave laws other than the Gaussian's to the numbers", () => {
     const uniform = { elements: 4096, zeroFraction: 0, shape: "uniform" as const, rms: 1, log2Spread: 0 };
     const other = { id: "a/activation", role: "activation", start: uniform, end: uniform } as unknown as TensorPrediction;
@@ -450,6 +498,11 @@ describe("weights that share their profile objects", () => {
   });
 });
 
+// a number spread evenly over [min, max] (fast-check's doubles gather at the ends and near 0)
+function spreadOver(min: number, max: number): fc.Arbitrary<number> {
+  return fc.integer({ min: 0, max: 1 << 20 }).map((i) => min + ((max - min) * i) / (1 << 20));
+}
+
 describe("the bounds", () => {
   it("the share below a threshold h is at least 1/2 − Q(h/rms) (the draws z ≤ 0 at the value of z = 0)", () => {
     // P(|x| ≤ h | r) = erf(h/(r·√2)) for a Gaussian magnitude of rms r = rms·2^(S·z) (Abramowitz & Stegun 7.1.1), over
@@ -504,6 +557,48 @@ describe("the bounds", () => {
       { numRuns: 600 },
     );
     expect(told).toBeGreaterThan(100);
+  });
+
+  it("gaussianNoiseAbove: the subnormal noise's draw integral is at least the target wherever it says so", () => {
+    // the noise's definition as in noiseWithin's test above, by the independent fine quadrature; sides near the band
+    // (their rms 12 binades under the smallest normal to 10 above it), spreads of half a
+    // binade to 4.5, bounds above the rms; targets from an eighth of the integral to a little past it
+    const gaussianBelow = (r: number, t: number): number => 1 - erfc(t / (r * Math.SQRT2));
+    let told = 0;
+    let near = 0;
+    fc.assert(
+      fc.property(
+        fc.constantFrom(BINARY16, E5M2, E4M3_SATURATING),
+        spreadOver(-12, 10),
+        spreadOver(0.5, 4.5),
+        fc.oneof(fc.constant(-1), spreadOver(0, 12)),
+        spreadOver(-3, 0.25),
+        (limits, aboveNormal, spread, boundAbove, off) => {
+          // the rms a number of binades from the smallest normal
+          const log2Rms = Math.log2(limits.minNormal) + aboveNormal;
+          const rms = 2 ** log2Rms;
+          const bound = boundAbove >= 0 ? 2 ** (log2Rms + boundAbove) : 0;
+          const delta = limits.smallest;
+          const high = limits.minNormal - delta / 2;
+          const exact = fineMean((z) => {
+            const r = rms * 2 ** (spread * z);
+            const below = (t: number) => (bound > 0 && t >= bound ? 1 : gaussianBelow(r, t));
+            return (Math.max(0, below(high) - below(limits.flushBound)) * delta * delta) / 12 / (r * r);
+          });
+          // never past the integral itself
+          expect(gaussianNoiseAbove(rms, spread * Math.LN2, bound, limits, exact * (1 + 1e-6))).toBe(false);
+          const target = exact * 2 ** off;
+          if (!(target > 0) || !gaussianNoiseAbove(rms, spread * Math.LN2, bound, limits, target)) return;
+          told++;
+          expect(exact).toBeGreaterThanOrEqual(target * (1 - 1e-6));
+          if (off > -1) near++;
+        },
+      ),
+      { numRuns: 1500 },
+    );
+    // told often, and within a factor 2 of the integral at times (the bound is not far below it)
+    expect(told).toBeGreaterThan(100);
+    expect(near).toBeGreaterThan(10);
   });
 
   it("noiseAtMost is the comparison of the noise itself with the limit", () => {
