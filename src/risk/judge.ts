@@ -483,7 +483,9 @@ export function judgeScaled(
   setting.notHeld.countOnly = true;
   let context: HazardContext | undefined;
   const sites = subjects.sites.length;
-  for (const i of order) {
+  // indexed loops: an iterator's result objects are a heap allocation per subject where the loop is not optimized
+  for (let o = 0; o < order.length; o++) {
+    const i = order[o] as number;
     if (i < sites) {
       const { site, origin } = subjects.sites[i] as ScaledSubjects["sites"][number];
       if (context === undefined) {
@@ -492,7 +494,9 @@ export function judgeScaled(
       }
       const checked = evaluateHazard(site, context, origin);
       const loss = site.kind === "loss-value";
-      for (const f of checked.findings) {
+      const findings = checked.findings;
+      for (let k = 0; k < findings.length; k++) {
+        const f = findings[k] as Finding;
         if (f.format !== format && !loss) continue;
         if (!visit(f, i, isConditionalFinding(checked, f))) return;
       }
@@ -505,9 +509,16 @@ export function judgeScaled(
     const found = countedTensor(tensor, setting, lossScale, subjects.arrays);
     if (found === 0) continue;
     if (found > 0) {
-      // FOUND holds them until the next tensor's judgement: copied out, as a visitor may keep them
-      const findings = FOUND.slice(0, found);
-      for (let k = 0; k < findings.length; k++) if (!visit(findings[k] as Finding, i, false)) return;
+      // FOUND holds them until the next tensor's judgement, which a visitor may start (judging again): read out first,
+      // into locals, not an array (countedFindings puts at most four: the overflow's or the headroom's, the energy's,
+      // the flushed share's and the noise's)
+      const f1 = FOUND[1] as Finding;
+      const f2 = FOUND[2] as Finding;
+      const f3 = FOUND[3] as Finding;
+      if (!visit(FOUND[0] as Finding, i, false)) return;
+      if (found > 1 && !visit(f1, i, false)) return;
+      if (found > 2 && !visit(f2, i, false)) return;
+      if (found > 3 && !visit(f3, i, false)) return;
       continue;
     }
     // the findings alone: the tensor's risk objects are not made
