@@ -626,17 +626,19 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
 
 /**
  * A counted subnormal-noise finding whose value (the larger of the sides' noise, as settledRisk reports it) is worked
- * out when first read: a weighed scale's counts read only its kind and severity. The fields and their order are
- * counted()'s, the value a getter on the prototype (JSON.stringify writes it in its place).
+ * out when first read: a weighed scale's counts read only its kind and severity. The keys and their order are
+ * counted()'s, `value` an own enumerable accessor among them (as a check result's lazy fields, src/risk/tensor-check.ts),
+ * so JSON, Object.keys, a spread and structuredClone read it as a plain finding's.
  */
 class CountedNoise implements Finding {
-  readonly format: Finding["format"];
-  readonly subject: string;
-  readonly source = "tensor" as const;
-  readonly kind = "subnormal-values" as const;
-  readonly severity = "at-risk" as const;
-  readonly threshold: number;
-  readonly sentence = "";
+  declare readonly format: Finding["format"];
+  declare readonly subject: string;
+  declare readonly source: "tensor";
+  declare readonly kind: "subnormal-values";
+  declare readonly severity: "at-risk";
+  declare readonly value: number;
+  declare readonly threshold: number;
+  declare readonly sentence: string;
   readonly #decision: FormatDecision;
   readonly #factor: number;
   // a side past the limit, before the factor, and its noise as noisePast gave it (NOISE_UNWORKED: to be worked out)
@@ -644,33 +646,46 @@ class CountedNoise implements Finding {
   readonly #noise: number;
   // the other side, whose noise is still to be worked out for the value (null: none, or not a part of it)
   readonly #other: MagnitudeProfile | null;
-  #value = NaN;
 
   constructor(subject: string, d: FormatDecision, factor: number, side: MagnitudeProfile | null, noise: number, other: MagnitudeProfile | null) {
-    this.format = d.limits.format;
-    this.subject = subject;
-    this.threshold = d.noiseLimit;
     this.#decision = d;
     this.#factor = factor;
     this.#side = side;
     this.#noise = noise;
     this.#other = other;
+    const self = this as { -readonly [K in keyof Finding]: Finding[K] };
+    self.format = d.limits.format;
+    self.subject = subject;
+    self.source = "tensor";
+    self.kind = "subnormal-values";
+    self.severity = "at-risk";
+    Object.defineProperty(this, "value", COUNTED_NOISE_VALUE);
+    self.threshold = d.noiseLimit;
+    self.sentence = "";
   }
 
-  get value(): number {
-    if (this.#value !== this.#value) {
-      const d = this.#decision;
-      let value = this.#noise === NOISE_UNWORKED ? workedNoise(this.#side as MagnitudeProfile, this.#factor, d) : this.#noise;
-      if (this.#other !== null) value = Math.max(value, workedNoise(this.#other, this.#factor, d));
-      this.#value = value;
-    }
-    return this.#value;
-  }
-
-  toJSON(): Omit<Finding, "at"> {
-    return { format: this.format, subject: this.subject, source: this.source, kind: this.kind, severity: this.severity, value: this.value, threshold: this.threshold, sentence: this.sentence };
+  static worked(finding: CountedNoise): number {
+    const d = finding.#decision;
+    let value = finding.#noise === NOISE_UNWORKED ? workedNoise(finding.#side as MagnitudeProfile, finding.#factor, d) : finding.#noise;
+    if (finding.#other !== null) value = Math.max(value, workedNoise(finding.#other, finding.#factor, d));
+    return value;
   }
 }
+
+// worked out on the first read, then kept as a plain data field (one descriptor shared by every object, so they keep
+// one layout)
+const COUNTED_NOISE_VALUE: PropertyDescriptor = {
+  get(this: CountedNoise) {
+    const value = CountedNoise.worked(this);
+    Object.defineProperty(this, "value", { value, writable: true, enumerable: true, configurable: true });
+    return value;
+  },
+  set(this: CountedNoise, value: unknown) {
+    Object.defineProperty(this, "value", { value, writable: true, enumerable: true, configurable: true });
+  },
+  enumerable: true,
+  configurable: true,
+};
 
 // a side's noise as noisePast works it out, on a side of its own (the decision's two are the next tensor's by then)
 function workedNoise(profile: MagnitudeProfile, factor: number, d: FormatDecision): number {

@@ -400,14 +400,20 @@ describe("findings that are only counted", () => {
           const full = tensorFormatRisk(tensor, limits, tensorStatistics(tensor, 1, t), { ...base, thresholds: t }).findings;
           const n = countedFindings(tensor, tensor.start, tensor.end, same, new FormatDecision(limits, t));
           const found = FOUND.slice(0, n);
-          expect(found.map(countedPart)).toEqual(full.map(countedPart));
           const noisy = found.find((f) => f.kind === "subnormal-values");
+          // an unread value is an own enumerable accessor: plain data to Object.keys and a spread (which reads it)
+          if (noisy !== undefined && Object.getOwnPropertyDescriptor(noisy, "value")?.get !== undefined) {
+            lazy++;
+            expect(Object.keys(noisy)).toEqual(["format", "subject", "source", "kind", "severity", "value", "threshold", "sentence"]);
+            const copy = { ...noisy };
+            expect(Object.getOwnPropertyDescriptor(noisy, "value")?.value).toBe(copy.value);
+          }
+          expect(found.map(countedPart)).toEqual(full.map(countedPart));
           if (noisy === undefined) {
             within++;
             return;
           }
           past++;
-          if (Object.getOwnPropertyDescriptor(noisy, "value") === undefined) lazy++;
           const expected = full.find((f) => f.kind === "subnormal-values") as Finding;
           const { at: _at, ...plain } = { ...expected, sentence: "" };
           expect(JSON.stringify(noisy)).toBe(JSON.stringify(plain));
