@@ -693,7 +693,7 @@ let sumMakingWords = "";
 // profile of theirs), so a thousand sites need not make thousands of profiles. Only the fields the risk module reads
 // are written: the engine's own moments and correlations (meanSquare, maxElement, sampleCorrelation,
 // positionCorrelation, coherentRms) are read nowhere in src/risk and stay undefined in the slots.
-function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: number): MagnitudeProfile {
+export function scaledIn(slot: MagnitudeProfile, profile: MagnitudeProfile, factor: number): MagnitudeProfile {
   if (factor === 1) return profile;
   const bound = profile.bound;
   slot.elements = profile.elements;
@@ -734,6 +734,10 @@ const START_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 const END_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 const START_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
 const END_DIVIDED = profileCopy(WORKING, 1.5, 0.5, 1);
+/** A working profile for {@link scaledIn} (a caller's own, kept by nothing it passes it to). */
+export function workingProfile(): MagnitudeProfile {
+  return profileCopy(WORKING, 1.5, 0.5, 1);
+}
 // a backward sum's terms and result at the loss scale (gradientAccumulation: one side at a time)
 const TERMS_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);
 const SUM_SCALED = profileCopy(WORKING, 1.5, 0.5, 1);

@@ -24,6 +24,7 @@ import { notCountedSentence, plainNumber, sentenceStart, tinyShare } from "../ri
 import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums, sameLaw } from "./swamping.js";
+import { scaledIn, workingProfile } from "../risk/hazards.js";
 
 export { swampedShare } from "./swamping.js";
 
@@ -205,29 +206,30 @@ function schedule(optimizer: OptimizerSpec): SchedulePointRate[] {
 /** Pair each weight with its weight gradient by layer and suffix (`dense-1/weight` ↔ `dense-1/weight-gradient`). */
 export function weightPairs(prediction: Prediction): { weight: TensorPrediction; gradient: TensorPrediction }[] {
   const tensors = prediction.tensors;
-  // the gradients of each layer (a layer has a few weights): found by layer, then by suffix, with no key string made
-  // per tensor
-  // per tensor (one pass: each tensor's record is read once), the weights in order
-  const gradients = new Map<string, TensorPrediction[]>();
-  const weights: TensorPrediction[] = [];
+  // the gradients of each layer (a layer has a few weights) chained by index, newest first: the layer's newest in a map,
+  // each gradient's previous one of its layer in a typed array (a list per layer made ~140 kB a 1,000-layer check),
+  // with no key string made per tensor
+  const newest = new Map<string, number>();
+  const previous = new Int32Array(tensors.length);
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as TensorPrediction;
-    const role = t.role;
-    if (role === "weight") weights.push(t);
-    if (role !== "weight-gradient") continue;
-    const list = gradients.get(t.layer);
-    if (list === undefined) gradients.set(t.layer, [t]);
-    else list.push(t);
+    if (t.role !== "weight-gradient") continue;
+    const layer = t.layer;
+    const before = newest.get(layer);
+    previous[i] = before === undefined ? -1 : before;
+    newest.set(layer, i);
   }
   const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
-  for (let i = 0; i < weights.length; i++) {
-    const t = weights[i] as TensorPrediction;
-    const list = gradients.get(t.layer);
-    if (list === undefined) continue;
-    // the last of the layer's gradients with the weight's suffix, as one keyed table of them would keep
-    let g: TensorPrediction | undefined;
-    for (let k = 0; k < list.length; k++) if (sameSuffix(t.id, (list[k] as TensorPrediction).id)) g = list[k];
-    if (g) pairs.push({ weight: t, gradient: g });
+  // the weights in order
+  for (let i = 0; i < tensors.length; i++) {
+    const t = tensors[i] as TensorPrediction;
+    if (t.role !== "weight") continue;
+    // the last of the layer's gradients with the weight's suffix, as one keyed table of them would keep: the newest
+    // matching one in the chain
+    let k = newest.get(t.layer);
+    if (k === undefined) continue;
+    while (k >= 0 && !sameSuffix(t.id, (tensors[k] as TensorPrediction).id)) k = previous[k] as number;
+    if (k >= 0) pairs.push({ weight: t, gradient: tensors[k] as TensorPrediction });
   }
   return pairs;
 }
@@ -454,8 +456,8 @@ const MADE_LIMIT = 16;
  */
 function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: MagnitudeProfile): UpdateLoss[] {
   const { optimizer, points } = c;
-  const updates: UpdateLoss[] = [];
   if (c.clip !== null) {
+    const updates: UpdateLoss[] = [];
     const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
     for (let j = 0; j < points.length; j++) updates.push(updateLoss(optimizer, c.sums, gradient, w, points[j] as SchedulePointRate, ulp, c.clip, c.epsilon));
     return updates;
@@ -463,22 +465,24 @@ function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: Magnitu
   const made = c.made;
   // first by the keys alone, with no update made: Adam's updates where ε is negligible (measured Dec 2026 on the
   // 1,000-layer bench spec, 3 alternating pairs of 80 fresh checks: checkOptimizer 1.24–1.41 ms best with it, 1.56–1.63
-  // with the law matcher alone, which makes each weight's update laws to compare them)
-  const keys: number[] = [];
+  // with the law matcher alone, which makes each weight's update laws to compare them); the keys worked out in one
+  // array for every weight, copied only into a list kept to share
+  const keys = KEYS;
+  const count = points.length;
   let keyed = true;
-  for (let j = 0; j < points.length; j++) {
+  for (let j = 0; j < count; j++) {
     const key = settledBy(c, points[j] as SchedulePointRate, gradient);
-    keys.push(key);
+    keys[j] = key;
     if (key < 0) keyed = false;
   }
   if (keyed) {
     for (let k = 0; k < made.length; k++) {
       const m = made[k] as MadeUpdates;
-      if (sameKeys(m.keys, keys) && sameLaw(m.weight, w) && m.weight.zeroFraction === w.zeroFraction) return m.updates;
+      if (sameKeys(m.keys, keys, count) && sameLaw(m.weight, w) && m.weight.zeroFraction === w.zeroFraction) return m.updates;
     }
   }
   const laws: MagnitudeProfile[] = [];
-  for (let j = 0; j < points.length; j++) {
+  for (let j = 0; j < count; j++) {
     const point = points[j] as SchedulePointRate;
     laws.push(updateProfile(optimizer, point.at === "end" ? gradient.end : gradient.start, point.lr, point.firstStep, c.epsilon));
   }
@@ -491,10 +495,14 @@ function updatesOf(c: WeightCheckContext, gradient: TensorPrediction, w: Magnitu
   }
   // the ulp of the weight's rms: a list shared above needs none
   const ulp = w.rms > 0 ? ulpOf(w.rms, c.updateFormat) : -1;
-  for (let j = 0; j < points.length; j++) updates.push(lossOf(c.sums, w, points[j] as SchedulePointRate, laws[j] as MagnitudeProfile, ulp));
-  if (made.length < MADE_LIMIT) made.push({ weight: w, laws, keys, updates });
+  const updates: UpdateLoss[] = [];
+  for (let j = 0; j < count; j++) updates.push(lossOf(c.sums, w, points[j] as SchedulePointRate, laws[j] as MagnitudeProfile, ulp));
+  if (made.length < MADE_LIMIT) made.push({ weight: w, laws, keys: keys.slice(0, count), updates });
   return updates;
 }
+
+// updatesOf's keys of the weight being checked (it runs to completion before it is entered again)
+const KEYS: number[] = [];
 
 /**
  * Adam's update at a point is set by the point alone where ε is negligible beside the gradients' rms (updateProfile:
@@ -509,10 +517,10 @@ function settledBy(c: WeightCheckContext, point: SchedulePointRate, gradient: Te
   return nonzeroElements(g) > 0 ? 1 : 0;
 }
 
-// whether two weights' keys (settledBy) are equal and all settled
-function sameKeys(a: readonly number[], b: readonly number[]): boolean {
-  if (a.length !== b.length) return false;
-  for (let j = 0; j < a.length; j++) if ((a[j] as number) < 0 || a[j] !== b[j]) return false;
+// whether a kept list's keys (settledBy) equal the first `count` of `b` and are all settled
+function sameKeys(a: readonly number[], b: readonly number[], count: number): boolean {
+  if (a.length !== count) return false;
+  for (let j = 0; j < count; j++) if ((a[j] as number) < 0 || a[j] !== b[j]) return false;
   return true;
 }
 
@@ -526,8 +534,9 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
   // the states hold the clipped gradients
   const end = scaleProfile(gradient.end, c.clip?.end?.factor ?? 1);
   const start = scaleProfile(gradient.start, c.clip?.start?.factor ?? 1);
+  // the first moment is read once, by fractionBelow (which keeps no profile): written into one working profile
   const firstMoment = adamLike
-    ? scaleProfile(end, 1 - optimizer.betas[0])
+    ? scaledIn(FIRST_MOMENT, end, 1 - optimizer.betas[0])
     : optimizer.kind === "momentum"
       ? end
       : null;
@@ -549,6 +558,9 @@ function weightCheck(c: WeightCheckContext, weight: TensorPrediction, gradient: 
     secondMomentOverflowRisk: adamLike ? overflowRisk(start, Math.sqrt(c.stateOverflow)) : 0,
   };
 }
+
+// weightCheck's first moment (it runs to completion before it is entered again)
+const FIRST_MOMENT = workingProfile();
 
 /** Below this bound on an overflow probability the risk is reported as 0, its integral not run. */
 const OVERFLOW_NEGLIGIBLE = 1e-15;
