@@ -20,8 +20,10 @@ import type { LedgerEntry, MagnitudeProfile, PlanSlot, TensorPrediction, TensorR
 import type { FormatName } from "../formats/names.js";
 import type { LayerFamily } from "../spec/types.js";
 import type { TensorCheck, TensorCheckRisk } from "./judge.js";
+import { DEFAULT_THRESHOLDS } from "./catalogue.js";
 import {
   scaledTensor,
+  worstVerdict,
   scaledTensorNumbers,
   type ScaledTensor,
   type TensorProfileRisk,
@@ -70,16 +72,14 @@ export class CheckedTensor implements TensorCheck {
   declare risks: TensorCheckRisk[];
   declare verdict: Verdict;
   #tensor: TensorPrediction;
-  #lossScale: number;
-  #thresholds: RiskThresholds;
+  // the loss scale and thresholds, one record shared by the tensors judged alike (see setupOf)
+  #setup: Setup;
   #scaled: ScaledTensor | undefined;
   // the risks added, made into the result's objects when `risks` is first read: the first in the fields below (most
   // tensors are held in one format), the others in #more. #ready: a risk judged from its numbers (a complete object),
-  // else null and the first risk is a decided one: the arguments of its CheckedRisk
-  #count: number;
+  // else null and the first risk is a decided one (#options not null, none added where both are null): the arguments of
+  // its CheckedRisk, whose `judged` is its options' and whose verdict is its findings' worst (as the judge decides them)
   #ready: TensorCheckRisk | null;
-  #judged: boolean;
-  #riskVerdict: Verdict;
   #findings: Finding[];
   #limits: RangeLimits | null;
   #options: TensorRiskOptions | null;
@@ -97,13 +97,9 @@ export class CheckedTensor implements TensorCheck {
    */
   constructor(tensor: TensorPrediction, lossScale: number, thresholds: RiskThresholds, scaled: ScaledTensor | undefined, ledger: boolean, counted = false) {
     this.#tensor = tensor;
-    this.#lossScale = lossScale;
-    this.#thresholds = thresholds;
+    this.#setup = setupOf(lossScale, thresholds);
     this.#scaled = scaled;
-    this.#count = 0;
     this.#ready = null;
-    this.#judged = false;
-    this.#riskVerdict = "fits";
     this.#findings = NO_FINDINGS;
     this.#limits = null;
     this.#options = null;
@@ -146,9 +142,8 @@ export class CheckedTensor implements TensorCheck {
     startOverflow: number,
     endOverflow: number,
   ): void {
-    if (tensor.#count++ === 0) {
-      tensor.#judged = judged;
-      tensor.#riskVerdict = verdict;
+    if (tensor.#ready === null && tensor.#options === null) {
+      // `judged` is options.judged and `verdict` the findings' worst (judge.ts judgeTensor): read from them again
       tensor.#findings = findings;
       tensor.#limits = limits;
       tensor.#options = options;
@@ -161,7 +156,7 @@ export class CheckedTensor implements TensorCheck {
 
   /** Adds a risk judged from its numbers, as it is. */
   static addJudged(tensor: CheckedTensor, risk: TensorCheckRisk): void {
-    if (tensor.#count++ === 0) {
+    if (tensor.#ready === null && tensor.#options === null) {
       tensor.#ready = risk;
       return;
     }
@@ -175,8 +170,8 @@ export class CheckedTensor implements TensorCheck {
       for (let i = 0; i < made.length; i++) if ((made[i] as TensorCheckRisk).format === format) return (made[i] as TensorCheckRisk).findings;
       return NO_FINDINGS;
     }
-    if (tensor.#count === 0) return NO_FINDINGS;
     const ready = tensor.#ready;
+    if (ready === null && tensor.#options === null) return NO_FINDINGS;
     if (ready !== null ? ready.format === format : (tensor.#limits as RangeLimits).format === format) return ready !== null ? ready.findings : tensor.#findings;
     const more = tensor.#more;
     if (more !== null) {
@@ -193,11 +188,21 @@ export class CheckedTensor implements TensorCheck {
     let risks = tensor.#risks;
     if (risks !== null) return risks;
     const more = tensor.#more;
-    if (tensor.#count === 0) risks = [];
+    const options = tensor.#options;
+    if (tensor.#ready === null && options === null) risks = [];
     else {
       const first =
         tensor.#ready ??
-        new CheckedRisk(tensor.#judged, tensor.#riskVerdict, ownFindings(tensor.#findings), tensor, tensor.#limits as RangeLimits, tensor.#options as TensorRiskOptions, tensor.#startOverflow, tensor.#endOverflow);
+        new CheckedRisk(
+          (options as TensorRiskOptions).judged,
+          worstVerdict(tensor.#findings),
+          ownFindings(tensor.#findings),
+          tensor,
+          tensor.#limits as RangeLimits,
+          options as TensorRiskOptions,
+          tensor.#startOverflow,
+          tensor.#endOverflow,
+        );
       // most tensors are held in one format: a literal of one is the smallest array
       risks = [first];
       if (more !== null) {
@@ -219,8 +224,24 @@ export class CheckedTensor implements TensorCheck {
 
   /** The tensor's profiles after its loss-scale factor, with their statistics (worked out once). */
   static scaled(tensor: CheckedTensor): ScaledTensor {
-    return (tensor.#scaled ??= scaledTensor(tensor.#tensor, tensor.#lossScale, tensor.#thresholds));
+    return (tensor.#scaled ??= scaledTensor(tensor.#tensor, tensor.#setup.lossScale, tensor.#setup.thresholds));
   }
+}
+
+/** A judgement's loss scale and thresholds, which a tensor keeps to work its numbers out when first read. */
+interface Setup {
+  readonly lossScale: number;
+  readonly thresholds: RiskThresholds;
+}
+
+// the record last made: a judgement makes its thousands of tensors at one loss scale and thresholds, so they share one
+// (read only; each tensor kept two fields of its own, its loss scale a double box each)
+let lastSetup: Setup = { lossScale: Number.NaN, thresholds: DEFAULT_THRESHOLDS };
+
+function setupOf(lossScale: number, thresholds: RiskThresholds): Setup {
+  const last = lastSetup;
+  if (Object.is(last.lossScale, lossScale) && last.thresholds === thresholds) return last;
+  return (lastSetup = { lossScale, thresholds });
 }
 
 const STATISTICS = lazyField<CheckedTensor>("statistics", (tensor) => CheckedTensor.scaled(tensor).statistics);
