@@ -130,10 +130,21 @@ function nextDraft(list: DraftList): Draft {
   return draft;
 }
 
+// The numbers of the evaluation putGraded adds, written by its caller: the value, the at-risk and failing thresholds and
+// the sentence's extra number (Draft.extra). A double passed to a call the compiler does not inline is boxed, four
+// heap numbers per evaluation (~14,000 a 1,000-layer check, ~37,000 where its loss-scale pick is weighed); written
+// here they cross the call unboxed.
+const GRADE = new Float64Array(4);
+const VALUE = 0;
+const AT_RISK = 1;
+const FAILS = 2;
+const EXTRA = 3;
+
 /**
- * Add an evaluation graded against thresholds: above `fails` it fails, above `atRisk` it is at risk (NaN fits);
- * `capAtRisk`: the severity cannot exceed at-risk (e.g. only an implementation that does not widen would overflow);
- * a finding capped so carries the at-risk threshold, the one of the severity it has, even when its value passes `fails`.
+ * Add an evaluation graded against thresholds (GRADE: its value, at-risk and failing thresholds and extra number):
+ * above `fails` it fails, above `atRisk` it is at risk (NaN fits); `capAtRisk`: the severity cannot exceed at-risk (e.g.
+ * only an implementation that does not widen would overflow); a finding capped so carries the at-risk threshold, the
+ * one of the severity it has, even when its value passes `fails`.
  */
 function putGraded(
   list: DraftList,
@@ -141,15 +152,14 @@ function putGraded(
   heldIn: HeldIn,
   measure: Measure,
   kind: FindingKind,
-  value: number,
   critical: number | null,
-  atRisk: number,
-  fails: number,
   capAtRisk: boolean,
   wording: number,
-  extra: number,
   notWidened: boolean,
 ): void {
+  const value = GRADE[VALUE] as number;
+  const atRisk = GRADE[AT_RISK] as number;
+  const fails = GRADE[FAILS] as number;
   let verdict: Verdict = "fits";
   let threshold = 0;
   if (value > fails) {
@@ -159,7 +169,26 @@ function putGraded(
     verdict = "at-risk";
     threshold = atRisk;
   }
-  fill(nextDraft(list), limits.format, heldIn, measure, kind, value, critical, verdict, threshold, wording, extra, notWidened);
+  // fill's fields written here: its numbers passed would be boxed again
+  const draft = nextDraft(list);
+  draft.format = limits.format;
+  draft.heldIn = heldIn;
+  draft.measure = measure;
+  draft.value = value;
+  draft.criticalLevel = critical;
+  draft.kind = kind;
+  draft.verdict = verdict;
+  draft.threshold = threshold;
+  draft.wording = wording;
+  draft.extra = GRADE[EXTRA] as number;
+  draft.notWidened = notWidened;
+  draft.scaled = 0;
+  draft.scaleLog2 = Number.NaN;
+  draft.saturates = false;
+  draft.top = "";
+  draft.topValue = Number.NaN;
+  draft.topLayer = "";
+  draft.topInput = undefined;
 }
 
 function fill(
@@ -757,15 +786,21 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
       const held = k === 0 ? context.activations : context.accumulate;
       const scaled = FORMATS[held.format].bits === 8 && (context.scaling ?? "none") !== "none";
       const value = !scaled && site.terms >= held.overflowLevel ? 1 : 0;
-      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", value, held.overflowLevel,
-        t.overflowAtRisk, t.overflowFails, k === 0, SOFTMAX_GUARDED, scaled ? 1 : 0, k === 0);
+      GRADE[VALUE] = value;
+      GRADE[AT_RISK] = t.overflowAtRisk;
+      GRADE[FAILS] = t.overflowFails;
+      GRADE[EXTRA] = scaled ? 1 : 0;
+      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", held.overflowLevel, k === 0, SOFTMAX_GUARDED, k === 0);
     }
     return;
   }
   const critical = Math.log(limits.overflowLevel);
   const value = probabilityAnyAbove(input, critical, true);
-  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", value, critical,
-    t.overflowAtRisk, t.overflowFails, false, SOFTMAX_EXP, 0, false);
+  GRADE[VALUE] = value;
+  GRADE[AT_RISK] = t.overflowAtRisk;
+  GRADE[FAILS] = t.overflowFails;
+  GRADE[EXTRA] = 0;
+  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", critical, false, SOFTMAX_EXP, false);
 }
 
 // A row's sum of squares S = Σ x_i² over N features has mean N·r² and variance N·(κ − 1)·r⁴ (κ the element
@@ -806,8 +841,11 @@ function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: 
     const criticalRms = Math.sqrt(level / features);
     const value = anyAbove(level);
     const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", value, criticalRms,
-      atRisk, t.overflowFails, k === 0, NORM_SUM, profile.rms, k === 0);
+    GRADE[VALUE] = value;
+    GRADE[AT_RISK] = atRisk;
+    GRADE[FAILS] = t.overflowFails;
+    GRADE[EXTRA] = profile.rms;
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", criticalRms, k === 0, NORM_SUM, k === 0);
   }
 }
 
@@ -858,10 +896,16 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   const level = limits.overflowLevel;
   const coherent = elementLaw(profile).positiveShare === 1;
   const overflow = partialSumsOverflow(profile, terms, level, coherent);
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", error, null,
-    t.accumulationAtRisk, t.accumulationFails, false, ACCUMULATION_ERROR, 0, false);
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, coherent ? level / terms : level / Math.sqrt(terms),
-    t.overflowAtRisk, t.overflowFails, false, ACCUMULATION_OVERFLOW, 0, false);
+  GRADE[VALUE] = error;
+  GRADE[AT_RISK] = t.accumulationAtRisk;
+  GRADE[FAILS] = t.accumulationFails;
+  GRADE[EXTRA] = 0;
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", null, false, ACCUMULATION_ERROR, false);
+  GRADE[VALUE] = overflow;
+  GRADE[AT_RISK] = t.overflowAtRisk;
+  GRADE[FAILS] = t.overflowFails;
+  GRADE[EXTRA] = 0;
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", coherent ? level / terms : level / Math.sqrt(terms), false, ACCUMULATION_OVERFLOW, false);
 }
 
 // P(some partial sum of `terms` terms of `profile` reaches `level` in a step), `coherent` when the terms share one sign
@@ -923,13 +967,22 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
     if (scaled === null) scaled = scaledIn(TERMS_SCALED, input, lossScale);
     lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
   }
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", sumRoundingError(terms, limits.unitRoundoff), null,
-    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_ACCUMULATION_ERROR, 0, false);
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", overflow, level / Math.sqrt(terms) / lossScale,
-    t.overflowAtRisk, t.overflowFails, false, GRADIENT_ACCUMULATION_OVERFLOW, 0, false);
+  GRADE[VALUE] = sumRoundingError(terms, limits.unitRoundoff);
+  GRADE[AT_RISK] = t.accumulationAtRisk;
+  GRADE[FAILS] = t.accumulationFails;
+  GRADE[EXTRA] = 0;
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", null, false, GRADIENT_ACCUMULATION_ERROR, false);
+  GRADE[VALUE] = overflow;
+  GRADE[AT_RISK] = t.overflowAtRisk;
+  GRADE[FAILS] = t.overflowFails;
+  GRADE[EXTRA] = 0;
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", level / Math.sqrt(terms) / lossScale, false, GRADIENT_ACCUMULATION_OVERFLOW, false);
   // the terms' rms at the loss scale, as scaledIn makes it
-  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", lost, flushBound / lossScale,
-    t.energyAtRisk, t.energyFails, false, GRADIENT_ACCUMULATION_FLUSH, lossScale === 1 ? input.rms : input.rms * lossScale, false);
+  GRADE[VALUE] = lost;
+  GRADE[AT_RISK] = t.energyAtRisk;
+  GRADE[FAILS] = t.energyFails;
+  GRADE[EXTRA] = lossScale === 1 ? input.rms : input.rms * lossScale;
+  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", flushBound / lossScale, false, GRADIENT_ACCUMULATION_FLUSH, false);
 }
 
 // Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw
@@ -970,8 +1023,11 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     const value = probabilityAnyAbove(total, level);
     // a saturating per-tensor conversion clips past the scale's own quantile that often: the tensor rule's leeway
     const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", value, level / factor,
-      atRisk, t.overflowFails, k === 0, LOSS_VALUE, input.rms, k === 0);
+    GRADE[VALUE] = value;
+    GRADE[AT_RISK] = atRisk;
+    GRADE[FAILS] = t.overflowFails;
+    GRADE[EXTRA] = input.rms;
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", level / factor, k === 0, LOSS_VALUE, k === 0);
     const draft = list.items[list.count - 1] as Draft;
     draft.saturates = limits.saturates;
     if (scaling !== "none") {
@@ -991,13 +1047,19 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     const level = limits.overflowLevel;
     const settled = settledAnyAbove(sum, level, 1);
     const value = settled === 0 || settled === 1 ? settled : probabilityAnyAbove(sum, level);
-    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", value, level / summed,
-      t.overflowAtRisk, t.overflowFails, false, LOSS_PARTIAL_SUM, sum.rms, false);
+    GRADE[VALUE] = value;
+    GRADE[AT_RISK] = t.overflowAtRisk;
+    GRADE[FAILS] = t.overflowFails;
+    GRADE[EXTRA] = sum.rms;
+    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", level / summed, false, LOSS_PARTIAL_SUM, false);
   }
   if (summed > 1) {
     const u = context.accumulate.unitRoundoff;
-    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", Math.max(sumRoundingError(summed, u), stalledShortfall(summed, input.rms, u)), null,
-      t.accumulationAtRisk, t.accumulationFails, false, LOSS_SUM_ERROR, summed, false);
+    GRADE[VALUE] = Math.max(sumRoundingError(summed, u), stalledShortfall(summed, input.rms, u));
+    GRADE[AT_RISK] = t.accumulationAtRisk;
+    GRADE[FAILS] = t.accumulationFails;
+    GRADE[EXTRA] = summed;
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", null, false, LOSS_SUM_ERROR, false);
     // the term the sentence compares with the running sum's ulp (the draft's spare number; no tensor is named here)
     (list.items[list.count - 1] as Draft).topValue = input.rms;
   }
@@ -1098,11 +1160,17 @@ function gradientSumSides(
       endOverflow = startOverflow > SETTLED_SIDE && endSettled ? SETTLED_SIDE : overflowBeside(endSummed, endLevel, startOverflow, t.overflowFails);
     }
   }
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startOverflow, startLevel / lossScale,
-    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startSummed.rms, false);
+  GRADE[VALUE] = startOverflow;
+  GRADE[AT_RISK] = overflowAtRisk;
+  GRADE[FAILS] = t.overflowFails;
+  GRADE[EXTRA] = startSummed.rms;
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startLevel / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
   if (end !== null) {
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endOverflow, endLevel / lossScale,
-      overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endSummed.rms, false);
+    GRADE[VALUE] = endOverflow;
+    GRADE[AT_RISK] = overflowAtRisk;
+    GRADE[FAILS] = t.overflowFails;
+    GRADE[EXTRA] = endSummed.rms;
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endLevel / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
@@ -1143,20 +1211,32 @@ function gradientSumSides(
         }
       }
     }
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLost, startLevelDivided * workers,
-      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    GRADE[VALUE] = startLost;
+    GRADE[AT_RISK] = t.energyAtRisk;
+    GRADE[FAILS] = t.energyFails;
+    GRADE[EXTRA] = 0;
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLevelDivided * workers, true, GRADIENT_SUM_FLUSH, false);
     if (end !== null) {
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLost, endLevelDivided * workers,
-        t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+      GRADE[VALUE] = endLost;
+      GRADE[AT_RISK] = t.energyAtRisk;
+      GRADE[FAILS] = t.energyFails;
+      GRADE[EXTRA] = 0;
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLevelDivided * workers, true, GRADIENT_SUM_FLUSH, false);
     }
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   const error = sumRoundingError(terms, limits.unitRoundoff);
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
-    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  GRADE[VALUE] = error;
+  GRADE[AT_RISK] = t.accumulationAtRisk;
+  GRADE[FAILS] = t.accumulationFails;
+  GRADE[EXTRA] = 0;
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
   if (end !== null) {
-    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
-      t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+    GRADE[VALUE] = error;
+    GRADE[AT_RISK] = t.accumulationAtRisk;
+    GRADE[FAILS] = t.accumulationFails;
+    GRADE[EXTRA] = 0;
+    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
   }
 }
 
@@ -1178,35 +1258,49 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   const startSum = site.output !== undefined ? site.output : site.input;
   // as summedIn scales it: the predicted sum by the loss scale, else one contribution by the loss scale times the terms
   const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow",
-    countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), level / lossScale,
-    overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, false);
+  GRADE[VALUE] = countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound);
+  GRADE[AT_RISK] = overflowAtRisk;
+  GRADE[FAILS] = t.overflowFails;
+  GRADE[EXTRA] = startFactor === 1 ? startSum.rms : startSum.rms * startFactor;
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", level / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
   if (sides) {
     const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
     const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
     const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow",
-      countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), level / lossScale,
-      overflowAtRisk, t.overflowFails, false, GRADIENT_SUM_OVERFLOW, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, false);
+    GRADE[VALUE] = countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound);
+    GRADE[AT_RISK] = overflowAtRisk;
+    GRADE[FAILS] = t.overflowFails;
+    GRADE[EXTRA] = endFactor === 1 ? endSum.rms : endSum.rms * endFactor;
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", level / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
     const flushBound = Math.min(t.energyAtRisk, t.energyFails) / 2;
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush",
-      countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound), limits.flushBound * workers,
-      t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+    GRADE[VALUE] = countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound);
+    GRADE[AT_RISK] = t.energyAtRisk;
+    GRADE[FAILS] = t.energyFails;
+    GRADE[EXTRA] = 0;
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", limits.flushBound * workers, true, GRADIENT_SUM_FLUSH, false);
     if (sides) {
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush",
-        countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound), limits.flushBound * workers,
-        t.energyAtRisk, t.energyFails, true, GRADIENT_SUM_FLUSH, 0, false);
+      GRADE[VALUE] = countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound);
+      GRADE[AT_RISK] = t.energyAtRisk;
+      GRADE[FAILS] = t.energyFails;
+      GRADE[EXTRA] = 0;
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", limits.flushBound * workers, true, GRADIENT_SUM_FLUSH, false);
     }
   }
   const error = sumRoundingError(terms, limits.unitRoundoff);
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
-    t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+  GRADE[VALUE] = error;
+  GRADE[AT_RISK] = t.accumulationAtRisk;
+  GRADE[FAILS] = t.accumulationFails;
+  GRADE[EXTRA] = 0;
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
   if (sides) {
-    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", error, null,
-      t.accumulationAtRisk, t.accumulationFails, false, GRADIENT_SUM_ERROR, 0, false);
+    GRADE[VALUE] = error;
+    GRADE[AT_RISK] = t.accumulationAtRisk;
+    GRADE[FAILS] = t.accumulationFails;
+    GRADE[EXTRA] = 0;
+    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
   }
 }
 
