@@ -1265,8 +1265,11 @@ function lagrangeWeights(into: Float64Array, scale: Float64Array, s: number): vo
 const S_WEIGHTS_AT = new Float64Array(1).fill(NaN);
 // the interpolated log of the rows firstRow … (ROW_LOGS or ROW_COMPLEMENT_LOGS) over x_first …; NaN where a point is 0.
 // A row's six points are read into locals and summed in the order of the weights, as the loop over them would (the
-// same value); a row with a point not yet computed takes that loop (patchRowLog), which fills it
-function patchLog(rows: (Window | undefined)[], measure: number, firstRow: number, first: number): number {
+// same value); a row with a point not yet computed takes that loop (patchRowLog), which fills it. Its sum comes back
+// through ROW_SUM, not as a return value: a call's result is a tagged value, and merged with the fast path's doubles
+// it made the compiler keep every row's sum tagged, a heap number per addition (~1.7 kB a call, measured Dec 2026)
+// The value is left in PATCH_LOG: returned, it would be a heap number (~9,000 a 1,000-layer check)
+function patchLog(rows: (Window | undefined)[], measure: number, firstRow: number, first: number): void {
   const complement = rows === ROW_COMPLEMENT_LOGS;
   let result = 0;
   for (let r = 0; r < SPREAD_POINTS; r++) {
@@ -1282,13 +1285,19 @@ function patchLog(rows: (Window | undefined)[], measure: number, firstRow: numbe
     const l5 = values[at + 5] as number;
     // NaN where a point is not yet computed; −∞ where one is 0 (no log is +∞: a share is at most 1)
     const all = l0 + l1 + l2 + l3 + l4 + l5;
-    let sum: number;
+    let sum = 0;
     if (all !== all) {
-      sum = patchRowLog(rows, measure, a, first);
-      if (sum !== sum) return NaN;
+      patchRowLog(rows, measure, a, first);
+      sum = ROW_SUM[0] as number;
+      if (sum !== sum) {
+        PATCH_LOG[0] = NaN;
+        return;
+      }
     } else {
-      if (all === -Infinity) return NaN;
-      sum = 0;
+      if (all === -Infinity) {
+        PATCH_LOG[0] = NaN;
+        return;
+      }
       sum += (X_WEIGHTS[0] as number) * l0;
       sum += (X_WEIGHTS[1] as number) * l1;
       sum += (X_WEIGHTS[2] as number) * l2;
@@ -1298,10 +1307,15 @@ function patchLog(rows: (Window | undefined)[], measure: number, firstRow: numbe
     }
     result += (S_WEIGHTS[r] as number) * (complement ? a * a * sum : sum);
   }
-  return result;
+  PATCH_LOG[0] = result;
 }
-// row a's sum of patchLog, filling the points not yet computed (NaN where a point is 0)
-function patchRowLog(rows: (Window | undefined)[], measure: number, a: number, first: number): number {
+const PATCH_LOG = new Float64Array(1);
+// row a's sum of patchLog into ROW_SUM, filling the points not yet computed (NaN where a point is 0)
+const ROW_SUM = new Float64Array(1);
+function patchRowLog(rows: (Window | undefined)[], measure: number, a: number, first: number): void {
+  ROW_SUM[0] = rowLogSum(rows, measure, a, first);
+}
+function rowLogSum(rows: (Window | undefined)[], measure: number, a: number, first: number): number {
   let sum = 0;
   for (let k = 0; k < TABLE_POINTS; k++) {
     const row = rows[2 * a + measure] as Window;
@@ -1335,14 +1349,16 @@ function gaussianTableValue(kind: number, spread: number, x: number): number {
     lagrangeWeights(S_WEIGHTS, S_SCALE, s);
     S_WEIGHTS_AT[0] = s;
   }
-  const log = patchLog(ROW_LOGS, measure, firstRow, first);
+  patchLog(ROW_LOGS, measure, firstRow, first);
+  const log = PATCH_LOG[0] as number;
   if (!(log <= LOG_UPPER_SHARE)) return log === log && spread >= COMPLEMENT_MIN_SPREAD ? Math.min(1, Math.max(0, complementShare(measure, spread, firstRow, first))) : NaN;
   return Math.min(1, Math.max(0, Math.exp(log)));
 }
 // 1 − C of the patch, C interpolated in log; NaN where a point's complement is 0
 function complementShare(measure: number, spread: number, firstRow: number, first: number): number {
   const v = spread / ROW_STEP;
-  const log = patchLog(ROW_COMPLEMENT_LOGS, measure, firstRow, first) / (v * v);
+  patchLog(ROW_COMPLEMENT_LOGS, measure, firstRow, first);
+  const log = (PATCH_LOG[0] as number) / (v * v);
   return -Math.expm1(log);
 }
 
