@@ -85,9 +85,11 @@ class Draft {
   heldIn: HeldIn = "accumulate";
   measure: Measure = "overflow-risk";
   value = Number.NaN;
-  /** tagged (numbers and null) as in the evaluation it is copied to: a number field would be unboxed on load and
-   * then boxed as a small integer, which the evaluation's field does not expect (a deopt) */
-  criticalLevel: number | null = null;
+  /** the evaluation's criticalLevel, where `hasCritical` (else null): a double written in place, boxed only for an
+   * evaluation made (a tagged field took a heap number per draft, most of them dropped: the side not reported, a count's
+   * evaluations that fit) */
+  critical = Number.NaN;
+  hasCritical = false;
   kind: FindingKind = "accumulation-error";
   verdict: Verdict = "fits";
   threshold = Number.NaN;
@@ -134,11 +136,13 @@ function nextDraft(list: DraftList): Draft {
 // the sentence's extra number (Draft.extra). A double passed to a call the compiler does not inline is boxed, four
 // heap numbers per evaluation (~14,000 a 1,000-layer check, ~37,000 where its loss-scale pick is weighed); written
 // here they cross the call unboxed.
-const GRADE = new Float64Array(4);
+const GRADE = new Float64Array(5);
 const VALUE = 0;
 const AT_RISK = 1;
 const FAILS = 2;
 const EXTRA = 3;
+// the critical level, where the caller passes hasCritical
+const CRITICAL = 4;
 
 /**
  * Add an evaluation graded against thresholds (GRADE: its value, at-risk and failing thresholds and extra number):
@@ -152,7 +156,7 @@ function putGraded(
   heldIn: HeldIn,
   measure: Measure,
   kind: FindingKind,
-  critical: number | null,
+  hasCritical: boolean,
   capAtRisk: boolean,
   wording: number,
   notWidened: boolean,
@@ -175,7 +179,8 @@ function putGraded(
   draft.heldIn = heldIn;
   draft.measure = measure;
   draft.value = value;
-  draft.criticalLevel = critical;
+  draft.critical = GRADE[CRITICAL] as number;
+  draft.hasCritical = hasCritical;
   draft.kind = kind;
   draft.verdict = verdict;
   draft.threshold = threshold;
@@ -209,7 +214,8 @@ function fill(
   draft.heldIn = heldIn;
   draft.measure = measure;
   draft.value = value;
-  draft.criticalLevel = critical;
+  draft.critical = critical === null ? Number.NaN : critical;
+  draft.hasCritical = critical !== null;
   draft.kind = kind;
   draft.verdict = verdict;
   draft.threshold = threshold;
@@ -306,7 +312,7 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
       heldIn: worse.heldIn,
       measure: worse.measure,
       value: worse.value,
-      criticalLevel: worse.criticalLevel,
+      criticalLevel: worse.hasCritical ? worse.critical : null,
       verdict,
       at,
       sentence,
@@ -497,18 +503,18 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
     case SOFTMAX_GUARDED:
       return value > 0
         ? `The softmax of ${softmaxOf(site, origin)} subtracts the row maximum, but its denominator, up to ${site.terms} (one term per ${softmaxTerm(origin)}, ` +
-            `each at most 1), can pass what ${format} holds (${limitNumber(draft.criticalLevel as number)})` +
+            `each at most 1), can pass what ${format} holds (${limitNumber(draft.critical)})` +
             `${draft.notWidened ? " if the sum is kept in the activation format" : ""} (${verdictWord(verdict)}).`
         : `The softmax of ${softmaxOf(site, origin)} subtracts the row maximum, so exp cannot overflow, and its denominator (at most ` +
             `${site.terms}) stays within ${format}${draft.extra === 1 ? " with its scale factor" : ""}.`;
     case SOFTMAX_EXP:
       return (
         `The softmax of ${site.layer} does not subtract the row maximum: exp overflows ${format} for logits ` +
-        `above ${plainNumber(draft.criticalLevel as number)}, reached with probability ${probabilityWords(value)} per step${side} ` +
+        `above ${plainNumber(draft.critical)}, reached with probability ${probabilityWords(value)} per step${side} ` +
         `(${verdictWord(verdict)}).`
       );
     case NORM_SUM: {
-      const [limit, predicted] = distinctNumbers(draft.criticalLevel as number, draft.extra);
+      const [limit, predicted] = distinctNumbers(draft.critical, draft.extra);
       return (
         `The sum of squares over ${site.terms} elements in ${site.layer} overflows ${format} once the ` +
         `input rms exceeds ${limit} (predicted ${predicted})${site.statistics === undefined ? "" : ` in one of its ${Math.round(site.input.elements / Math.max(1, site.terms))} statistics, each spread by its own weights`}; probability ` +
@@ -550,7 +556,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       return "The partial sums of " + site.layer + tail.text;
     }
     case LOSS_VALUE: {
-      const critical = draft.criticalLevel as number;
+      const critical = draft.critical;
       const [digits, predicted] = distinctNumbers(critical, draft.extra);
       const limit = Number.isInteger(critical) ? limitNumber(critical) : digits;
       // what multiplies a term: the other terms of a sum, the loss scale (none said when it is 1)
@@ -650,7 +656,7 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
     default:
       return (
         `The second moment (1 − β2)·g² of ${site.layer} flushes in ${format} for gradients below ` +
-        `${plainNumber(draft.criticalLevel as number)}: ${sharePercent(value)} of its elements${side} (${verdictWord(verdict)}).`
+        `${plainNumber(draft.critical)}: ${sharePercent(value)} of its elements${side} (${verdictWord(verdict)}).`
       );
   }
 }
@@ -790,7 +796,8 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
       GRADE[AT_RISK] = t.overflowAtRisk;
       GRADE[FAILS] = t.overflowFails;
       GRADE[EXTRA] = scaled ? 1 : 0;
-      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", held.overflowLevel, k === 0, SOFTMAX_GUARDED, k === 0);
+      GRADE[CRITICAL] = held.overflowLevel;
+      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", true, k === 0, SOFTMAX_GUARDED, k === 0);
     }
     return;
   }
@@ -800,7 +807,8 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
   GRADE[AT_RISK] = t.overflowAtRisk;
   GRADE[FAILS] = t.overflowFails;
   GRADE[EXTRA] = 0;
-  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", critical, false, SOFTMAX_EXP, false);
+  GRADE[CRITICAL] = critical;
+  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", true, false, SOFTMAX_EXP, false);
 }
 
 // A row's sum of squares S = Σ x_i² over N features has mean N·r² and variance N·(κ − 1)·r⁴ (κ the element
@@ -845,7 +853,8 @@ function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: 
     GRADE[AT_RISK] = atRisk;
     GRADE[FAILS] = t.overflowFails;
     GRADE[EXTRA] = profile.rms;
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", criticalRms, k === 0, NORM_SUM, k === 0);
+    GRADE[CRITICAL] = criticalRms;
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", true, k === 0, NORM_SUM, k === 0);
   }
 }
 
@@ -900,12 +909,14 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   GRADE[AT_RISK] = t.accumulationAtRisk;
   GRADE[FAILS] = t.accumulationFails;
   GRADE[EXTRA] = 0;
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", null, false, ACCUMULATION_ERROR, false);
+  GRADE[CRITICAL] = Number.NaN;
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, false, ACCUMULATION_ERROR, false);
   GRADE[VALUE] = overflow;
   GRADE[AT_RISK] = t.overflowAtRisk;
   GRADE[FAILS] = t.overflowFails;
   GRADE[EXTRA] = 0;
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", coherent ? level / terms : level / Math.sqrt(terms), false, ACCUMULATION_OVERFLOW, false);
+  GRADE[CRITICAL] = coherent ? level / terms : level / Math.sqrt(terms);
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, ACCUMULATION_OVERFLOW, false);
 }
 
 // P(some partial sum of `terms` terms of `profile` reaches `level` in a step), `coherent` when the terms share one sign
@@ -971,18 +982,21 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
   GRADE[AT_RISK] = t.accumulationAtRisk;
   GRADE[FAILS] = t.accumulationFails;
   GRADE[EXTRA] = 0;
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", null, false, GRADIENT_ACCUMULATION_ERROR, false);
+  GRADE[CRITICAL] = Number.NaN;
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, false, GRADIENT_ACCUMULATION_ERROR, false);
   GRADE[VALUE] = overflow;
   GRADE[AT_RISK] = t.overflowAtRisk;
   GRADE[FAILS] = t.overflowFails;
   GRADE[EXTRA] = 0;
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", level / Math.sqrt(terms) / lossScale, false, GRADIENT_ACCUMULATION_OVERFLOW, false);
+  GRADE[CRITICAL] = level / Math.sqrt(terms) / lossScale;
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, GRADIENT_ACCUMULATION_OVERFLOW, false);
   // the terms' rms at the loss scale, as scaledIn makes it
   GRADE[VALUE] = lost;
   GRADE[AT_RISK] = t.energyAtRisk;
   GRADE[FAILS] = t.energyFails;
   GRADE[EXTRA] = lossScale === 1 ? input.rms : input.rms * lossScale;
-  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", flushBound / lossScale, false, GRADIENT_ACCUMULATION_FLUSH, false);
+  GRADE[CRITICAL] = flushBound / lossScale;
+  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", true, false, GRADIENT_ACCUMULATION_FLUSH, false);
 }
 
 // Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw
@@ -1027,7 +1041,8 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     GRADE[AT_RISK] = atRisk;
     GRADE[FAILS] = t.overflowFails;
     GRADE[EXTRA] = input.rms;
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", level / factor, k === 0, LOSS_VALUE, k === 0);
+    GRADE[CRITICAL] = level / factor;
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", true, k === 0, LOSS_VALUE, k === 0);
     const draft = list.items[list.count - 1] as Draft;
     draft.saturates = limits.saturates;
     if (scaling !== "none") {
@@ -1051,7 +1066,8 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     GRADE[AT_RISK] = t.overflowAtRisk;
     GRADE[FAILS] = t.overflowFails;
     GRADE[EXTRA] = sum.rms;
-    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", level / summed, false, LOSS_PARTIAL_SUM, false);
+    GRADE[CRITICAL] = level / summed;
+    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, LOSS_PARTIAL_SUM, false);
   }
   if (summed > 1) {
     const u = context.accumulate.unitRoundoff;
@@ -1059,7 +1075,8 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     GRADE[AT_RISK] = t.accumulationAtRisk;
     GRADE[FAILS] = t.accumulationFails;
     GRADE[EXTRA] = summed;
-    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", null, false, LOSS_SUM_ERROR, false);
+    GRADE[CRITICAL] = Number.NaN;
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", false, false, LOSS_SUM_ERROR, false);
     // the term the sentence compares with the running sum's ulp (the draft's spare number; no tensor is named here)
     (list.items[list.count - 1] as Draft).topValue = input.rms;
   }
@@ -1164,13 +1181,15 @@ function gradientSumSides(
   GRADE[AT_RISK] = overflowAtRisk;
   GRADE[FAILS] = t.overflowFails;
   GRADE[EXTRA] = startSummed.rms;
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", startLevel / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
+  GRADE[CRITICAL] = startLevel / lossScale;
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
   if (end !== null) {
     GRADE[VALUE] = endOverflow;
     GRADE[AT_RISK] = overflowAtRisk;
     GRADE[FAILS] = t.overflowFails;
     GRADE[EXTRA] = endSummed.rms;
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", endLevel / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
+    GRADE[CRITICAL] = endLevel / lossScale;
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
@@ -1215,13 +1234,15 @@ function gradientSumSides(
     GRADE[AT_RISK] = t.energyAtRisk;
     GRADE[FAILS] = t.energyFails;
     GRADE[EXTRA] = 0;
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", startLevelDivided * workers, true, GRADIENT_SUM_FLUSH, false);
+    GRADE[CRITICAL] = startLevelDivided * workers;
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
     if (end !== null) {
       GRADE[VALUE] = endLost;
       GRADE[AT_RISK] = t.energyAtRisk;
       GRADE[FAILS] = t.energyFails;
       GRADE[EXTRA] = 0;
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", endLevelDivided * workers, true, GRADIENT_SUM_FLUSH, false);
+      GRADE[CRITICAL] = endLevelDivided * workers;
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
     }
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
@@ -1230,13 +1251,15 @@ function gradientSumSides(
   GRADE[AT_RISK] = t.accumulationAtRisk;
   GRADE[FAILS] = t.accumulationFails;
   GRADE[EXTRA] = 0;
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
+  GRADE[CRITICAL] = Number.NaN;
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
   if (end !== null) {
     GRADE[VALUE] = error;
     GRADE[AT_RISK] = t.accumulationAtRisk;
     GRADE[FAILS] = t.accumulationFails;
     GRADE[EXTRA] = 0;
-    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
+    GRADE[CRITICAL] = Number.NaN;
+    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
   }
 }
 
@@ -1262,7 +1285,8 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   GRADE[AT_RISK] = overflowAtRisk;
   GRADE[FAILS] = t.overflowFails;
   GRADE[EXTRA] = startFactor === 1 ? startSum.rms : startSum.rms * startFactor;
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", level / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
+  GRADE[CRITICAL] = level / lossScale;
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
   if (sides) {
     const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
     const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
@@ -1271,7 +1295,8 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
     GRADE[AT_RISK] = overflowAtRisk;
     GRADE[FAILS] = t.overflowFails;
     GRADE[EXTRA] = endFactor === 1 ? endSum.rms : endSum.rms * endFactor;
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", level / lossScale, false, GRADIENT_SUM_OVERFLOW, false);
+    GRADE[CRITICAL] = level / lossScale;
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
@@ -1280,13 +1305,15 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
     GRADE[AT_RISK] = t.energyAtRisk;
     GRADE[FAILS] = t.energyFails;
     GRADE[EXTRA] = 0;
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", limits.flushBound * workers, true, GRADIENT_SUM_FLUSH, false);
+    GRADE[CRITICAL] = limits.flushBound * workers;
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
     if (sides) {
       GRADE[VALUE] = countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound);
       GRADE[AT_RISK] = t.energyAtRisk;
       GRADE[FAILS] = t.energyFails;
       GRADE[EXTRA] = 0;
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", limits.flushBound * workers, true, GRADIENT_SUM_FLUSH, false);
+      GRADE[CRITICAL] = limits.flushBound * workers;
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
     }
   }
   const error = sumRoundingError(terms, limits.unitRoundoff);
@@ -1294,13 +1321,15 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   GRADE[AT_RISK] = t.accumulationAtRisk;
   GRADE[FAILS] = t.accumulationFails;
   GRADE[EXTRA] = 0;
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
+  GRADE[CRITICAL] = Number.NaN;
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
   if (sides) {
     GRADE[VALUE] = error;
     GRADE[AT_RISK] = t.accumulationAtRisk;
     GRADE[FAILS] = t.accumulationFails;
     GRADE[EXTRA] = 0;
-    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", null, false, GRADIENT_SUM_ERROR, false);
+    GRADE[CRITICAL] = Number.NaN;
+    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
   }
 }
 
