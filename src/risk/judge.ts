@@ -647,7 +647,8 @@ function judgeTensors(
   ledger: boolean,
   earlier: readonly TensorCheck[] | undefined,
 ): TensorCheck[] {
-  const tensors: TensorCheck[] = [];
+  // made at its length and filled in order (grown by push, its copies were ~90 kB of garbage a 1,000-layer check)
+  const tensors: TensorCheck[] = new Array<TensorCheck>(predicted.length);
   const arrays = storedArrays(predicted);
   // each format's findings and count gathered by judgeTensor, in tensor order, rather than by a walk over every tensor
   // per format
@@ -657,9 +658,9 @@ function judgeTensors(
     // a tensor no scale multiplies, judged alone (not with the parts of a stored array), is what it was
     if (before instanceof CheckedTensor && before.id === tensor.id && lossScaleFactor(tensor.role, 2) === 1 && arrays?.has(tensor.id) !== true) {
       gatherFindings(before, tensor, settings, everyFormat);
-      tensors.push(before);
+      tensors[i] = before;
     } else {
-      tensors.push(judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays, ledger, true));
+      tensors[i] = judgeTensor(tensor, settings, lossScale, thresholds, everyFormat, arrays, ledger, true);
     }
   }
   return tensors;
@@ -835,7 +836,8 @@ function judgeSites(
   weightGradients: readonly TensorPrediction[],
   earlier: readonly HazardCheck[] | undefined,
 ): HazardCheck[] {
-  const hazards: HazardCheck[] = [];
+  // made at its length and filled in order, as judgeTensors' list
+  const hazards: HazardCheck[] = new Array<HazardCheck>(sites.length + training.length);
   const one = oneContext(settings);
   // the earlier judgement's check of a site no scale moves serves as it is (the sites come in the same order)
   const reusable = earlier !== undefined && earlier.length === sites.length + training.length ? earlier : undefined;
@@ -846,8 +848,8 @@ function judgeSites(
       ? judgeSiteOnce(site, origin, settings, contexts[0] as HazardContext)
       : judgeSite(site, origin, settings, contexts, spec, lossScale, thresholds, weightGradients);
   };
-  for (let i = 0; i < sites.length; i++) hazards.push(judge(sites[i] as HazardSite, "prediction", i));
-  for (let i = 0; i < training.length; i++) hazards.push(judge(training[i] as HazardSite, "training setup", sites.length + i));
+  for (let i = 0; i < sites.length; i++) hazards[i] = judge(sites[i] as HazardSite, "prediction", i);
+  for (let i = 0; i < training.length; i++) hazards[sites.length + i] = judge(training[i] as HazardSite, "training setup", sites.length + i);
   return hazards;
 }
 
