@@ -183,13 +183,12 @@ class Phase {
   keepStash = false;
   readonly ctx: OpContext;
   private readonly endVariance = new Map<GraphWeight, number>();
-  /** the profile a backward sum made of the gradient at its layer's input, for that gradient's tensor (see backward) */
-  private made: { of: Gradient; profile: MagnitudeProfile } | undefined = undefined;
-  private takeMade(): { of: Gradient; profile: MagnitudeProfile } | undefined {
-    const made = this.made;
-    this.made = undefined;
-    return made;
-  }
+  /**
+   * the profile a backward sum made of the gradient at its layer's input, for that gradient's tensor (see backward), and
+   * that gradient: two fields, not a pair object per layer
+   */
+  private madeOf: Gradient | undefined = undefined;
+  private madeProfile: MagnitudeProfile | undefined = undefined;
   /** the current layer's weight gradients and their per-micro-batch profiles (see perMicroBatch) */
   private readonly summed = new LayerPairs<WeightGradientMoment, MagnitudeProfile>();
   /**
@@ -517,11 +516,15 @@ class Phase {
     let current = node;
     // the profile the layer above made of this gradient for its backward sum's result (the same moments and count give
     // the same profile: one object for the site and the tensor), taken only by the next layer's tensor
-    this.made = undefined;
+    this.madeOf = undefined;
+    this.madeProfile = undefined;
     for (let i = layers.length - 1; i >= 0 && gradient !== undefined; i--) {
       const layer = layers[i] as GraphLayer;
       const prefix = this.build ? (this.prefixes[layer.index] ?? `${layer.name}/`) : "";
-      const made = this.takeMade();
+      const madeOf = this.madeOf as Gradient | undefined;
+      const madeProfile = this.madeProfile as MagnitudeProfile | undefined;
+      this.madeOf = undefined;
+      this.madeProfile = undefined;
       if (!(seeded && i === layers.length - 1)) {
         const elements = this.graph.batch * sampleElements(layer.output);
         this.emit(
@@ -532,13 +535,14 @@ class Phase {
           "activation-gradient",
           "gradients",
           this.outputShape(layer),
-          made !== undefined && made.of === gradient && made.profile.elements === elements ? made.profile : profileOf(gradient, elements),
+          madeProfile !== undefined && madeOf === gradient && madeProfile.elements === elements ? madeProfile : profileOf(gradient, elements),
           current,
         );
       }
       const branchResults = layer.branch === undefined ? NO_BRANCH : this.branchBackward(layer, gradient, current, bottom && i === 0);
       // what the branch's lowest layer made is the branch's own input gradient, not this layer's
-      this.made = undefined;
+      this.madeOf = undefined;
+      this.madeProfile = undefined;
       const result = ruleFor(layer.family).backward(this.ctx, layer, this.stash[layer.index], gradient, branchResults);
       // nothing reads a layer's stash after its backward rule: let it go, so a collection during the pass copies less
       if (!this.keepStash) this.stash[layer.index] = undefined;
@@ -673,7 +677,10 @@ class Phase {
     let of: WeightGradientMoment | undefined;
     if (h.output !== undefined) {
       output = profileOf(h.output, h.outputElements ?? h.inputElements);
-      if (makes === "input" && h.output === made) this.made = { of: made, profile: output };
+      if (makes === "input" && h.output === made) {
+        this.madeOf = made;
+        this.madeProfile = output;
+      }
     } else if (makes === "weight-gradient" || makes.startsWith("weight-gradient")) {
       // (the common makes first, by one comparison: the builtin's call was ~0.5% of the prediction)
       const name = makes === "weight-gradient" ? "weight" : makes.slice("weight-gradient:".length);

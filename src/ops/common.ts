@@ -175,6 +175,8 @@ export function linearGradient(q: number, logVar: number, width: number): Gradie
     shared: undefined,
     positionCorrelation: undefined,
     crossCorrelation: undefined,
+    // set below a homogeneous layer by the walk (src/magnitude/predict.ts tidyGradient)
+    eulerSum: undefined,
   };
 }
 

@@ -98,6 +98,16 @@ export function crossMoments(
   c: number,
   m: { mean: number; second: number; derivativeMean: number; derivativeSecond: number },
 ): { value: number; derivative: number } {
+  crossPair(name, slope, q, c, m);
+  return { value: CROSS[0] as number, derivative: CROSS[1] as number };
+}
+
+/**
+ * {@link crossMoments} written into CROSS (value, then derivative), for the forward rule, which reads the two numbers
+ * at once: no pair object per call (two per activation layer of both passes). The same arithmetic.
+ */
+function crossPair(name: ActivationName, slope: number, q: number, c: number, m: { mean: number; second: number; derivativeMean: number; derivativeSecond: number }): void {
+  const out = CROSS;
   if (name === "relu" || name === "leaky-relu") {
     const a = name === "relu" ? 0 : slope;
     const theta = Math.acos(c);
@@ -106,18 +116,24 @@ export function crossMoments(
     // leaky: φ(x) = relu(x) − a·relu(−x); E[relu(u) relu(−v)] = (q/2π)[sin θ − θ cos θ]
     const mixed = (q / (2 * Math.PI)) * (Math.sin(theta) - theta * c);
     const opposite = theta / (2 * Math.PI);
-    return {
-      value: positive * (1 + a * a) - 2 * a * mixed,
-      derivative: both * (1 + a * a) + 2 * a * opposite,
-    };
+    out[0] = positive * (1 + a * a) - 2 * a * mixed;
+    out[1] = both * (1 + a * a) + 2 * a * opposite;
+    return;
   }
-  if (name === "identity") return { value: c * q, derivative: 1 };
+  if (name === "identity") {
+    out[0] = c * q;
+    out[1] = 1;
+    return;
+  }
   const a0 = m.mean * m.mean;
   const a1 = q * m.derivativeMean * m.derivativeMean;
   const rest = Math.max(m.second - a0 - a1, 0);
   const dRest = Math.max(m.derivativeSecond - m.derivativeMean * m.derivativeMean, 0);
-  return { value: a0 + a1 * c + rest * c * c, derivative: m.derivativeMean * m.derivativeMean + dRest * c * c };
+  out[0] = a0 + a1 * c + rest * c * c;
+  out[1] = m.derivativeMean * m.derivativeMean + dRest * c * c;
 }
+/** crossPair's value and derivative, as raw doubles */
+const CROSS = new Float64Array(2);
 
 /**
  * Memo of allBelowZero in a direct-mapped table keyed on the bits of c and on n (a slot per hash; a collision replaces
@@ -270,19 +286,24 @@ function allBelowSeries(moments: Float64Array, r: number): number {
   return NaN;
 }
 
-/** Element shape of φ's output. */
-function outputShape(name: ActivationName, input: Signal): { shape: OpElementShape; bound?: number } {
+/** Element shape of φ's output (its bound is {@link outputBound}'s: two functions, no pair object per layer). */
+function outputShape(name: ActivationName, input: Signal): OpElementShape {
   switch (name) {
     case "relu":
-      return { shape: "half-gaussian" };
+      return "half-gaussian";
     case "tanh":
     case "sigmoid":
-      return { shape: "bounded", bound: 1 };
+      return "bounded";
     case "identity":
-      return input.bound === undefined ? { shape: input.shape } : { shape: input.shape, bound: input.bound };
+      return input.shape;
     default:
-      return { shape: "gaussian" };
+      return "gaussian";
   }
+}
+
+/** The bound of φ's output elements, if any. */
+function outputBound(name: ActivationName, input: Signal): number | undefined {
+  return name === "tanh" || name === "sigmoid" ? 1 : name === "identity" ? input.bound : undefined;
 }
 
 /**
@@ -296,6 +317,28 @@ export function pointwiseForward(
   input: Signal,
   positions = 1,
 ): { output: Signal; stash: ActivationStash; ratio: number; rule: Text } {
+  const stash = pointwiseStash(ctx, name, slope, input, positions);
+  const output = stash.output as Signal;
+  const ratio = forwardRatio(input, output);
+  return { output, stash, ratio, rule: ctx.ledger ? forwardRuleOf(name, input, ratio) : "" };
+}
+
+/** E[φ²]/E[x²] of the forward rule (0 for a zero input). */
+function forwardRatio(input: Signal, output: Signal): number {
+  return input.q > 0 ? output.q / input.q : 0;
+}
+
+/** The forward rule's ledger wording, at the nonzero elements' variance. */
+function forwardRuleOf(name: ActivationName, input: Signal, ratio: number): Text {
+  const keep = 1 - input.zeroFraction;
+  return forwardRule(name, keep > 0 ? input.q / keep : 0, ratio, input.gaussian);
+}
+
+/**
+ * {@link pointwiseForward}'s work: the stash, which holds the output too (its `output`), so the layer rule makes only
+ * its own result object (no pair object in between, on every activation layer of both passes).
+ */
+function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, input: Signal, positions: number): ActivationStash {
   const keep = 1 - input.zeroFraction;
   const qNonzero = keep > 0 ? input.q / keep : 0;
   const m = ctx.moments(name, qNonzero, slope);
@@ -309,16 +352,21 @@ export function pointwiseForward(
   let logVar = input.logVar;
   const unitKappa = input.fresh === undefined ? 0 : forwardUnitKappa(name, slope, qNonzero, input.fresh.unit, forwardKappa(m));
   if (input.fresh !== undefined) logVar = Math.max(logVar + (unitKappa - input.fresh.kappa) / input.fresh.width, 0);
-  const { shape, bound } = outputShape(name, input);
+  const shape = outputShape(name, input);
+  const bound = outputBound(name, input);
   // two samples' pre-activations u, v have correlation c = shared/q; E[φ(u)φ(v)] is the shared part of the output
   const correlation = qNonzero > 0 && input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
-  const cross = crossMoments(name, slope, qNonzero, correlation, m);
-  const shared = keep * keep * cross.value + (1 - keep * keep) * f0 * f0;
+  crossPair(name, slope, qNonzero, correlation, m);
+  const crossValue = CROSS[0] as number;
+  const crossDerivative = CROSS[1] as number;
+  const shared = keep * keep * crossValue + (1 - keep * keep) * f0 * f0;
   // two positions of one sample: the same map at their correlation (Poole et al. 2016, correlation map)
   const positionCorrelation = positionCorrelationOf(input);
   // (the same moments when the two correlations agree: one sample per position)
-  const crossPosition = positionCorrelation === correlation ? cross : crossMoments(name, slope, qNonzero, positionCorrelation, m);
-  const positionShared = keep * keep * crossPosition.value + (1 - keep * keep) * f0 * f0;
+  if (positionCorrelation !== correlation) crossPair(name, slope, qNonzero, positionCorrelation, m);
+  const positionValue = CROSS[0] as number;
+  const positionDerivative = CROSS[1] as number;
+  const positionShared = keep * keep * positionValue + (1 - keep * keep) * f0 * f0;
   // the fields set below are keys from the start, undefined where absent (as linearOutput's)
   const output: Signal = {
     q,
@@ -355,7 +403,7 @@ export function pointwiseForward(
     // two samples' output cosine r(c) = shared/q at their input cosine c; its slope is keep²·q·E[φ'(u)φ'(v)]/E[φ²]
     // (Price 1958), so E[r²] = r(c̄)² + r'(c̄)²·Var(c) to first order (the delta method)
     const r = Math.min(shared, q) / q;
-    const slopeAt = (keep * keep * qNonzero * cross.derivative) / q;
+    const slopeAt = (keep * keep * qNonzero * crossDerivative) / q;
     output.correlationSquare = Math.min(Math.max(r * r + slopeAt * slopeAt * Math.max(cosineSquare - correlation * correlation, 0), 0), 1);
   }
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
@@ -366,21 +414,16 @@ export function pointwiseForward(
   // the field holds its square over q², hence E[φ']⁴
   if (input.featureCovariance !== undefined && q > 0) output.featureCovariance = (fourthPower(derivativeMean) * input.featureCovariance * input.q * input.q) / (q * q);
   return {
+    input,
+    derivativeSecond,
+    derivativeMean,
+    derivativeZeroFraction,
+    kappaBackward: backwardKappa(m),
+    derivativeCross: keep * keep * crossDerivative + (1 - keep * keep) * d0 * d0,
+    derivativeCrossPosition: keep * keep * positionDerivative + (1 - keep * keep) * d0 * d0,
+    allOff,
+    slope,
     output,
-    stash: {
-      input,
-      derivativeSecond,
-      derivativeMean,
-      derivativeZeroFraction,
-      kappaBackward: backwardKappa(m),
-      derivativeCross: keep * keep * cross.derivative + (1 - keep * keep) * d0 * d0,
-      derivativeCrossPosition: keep * keep * crossPosition.derivative + (1 - keep * keep) * d0 * d0,
-      allOff,
-      slope,
-      output,
-    },
-    ratio: input.q > 0 ? q / input.q : 0,
-    rule: ctx.ledger ? forwardRule(name, qNonzero, input.q > 0 ? q / input.q : 0, input.gaussian) : "",
   };
 }
 
@@ -415,6 +458,19 @@ function carriedCoupling(name: ActivationName, out: Signal | undefined, coupling
 
 /** Backward rule of a pointwise activation: E[δ_in²] = E[φ'²]·E[δ_out²] (gradient independence). */
 export function pointwiseBackward(name: string, stash: ActivationStash, output: Gradient, ledger: boolean): { gradient: Gradient; ratio: number; rule: Text } {
+  const gradient = pointwiseGradient(name, stash, output, ledger);
+  return { gradient, ratio: BACKWARD_RATIO[0] as number, rule: backwardText };
+}
+
+/**
+ * The ratio and wording of the last {@link pointwiseGradient}: the layer rule reads them right after the call, so it
+ * makes no triple object (on every activation layer of both passes); the wording is "" without a ledger.
+ */
+const BACKWARD_RATIO = new Float64Array(1);
+let backwardText: Text = "";
+
+/** {@link pointwiseBackward}'s gradient; its ratio and wording left in BACKWARD_RATIO and backwardText. */
+function pointwiseGradient(name: string, stash: ActivationStash, output: Gradient, ledger: boolean): Gradient {
   let kappaBackward = stash.kappaBackward;
   let derivativeSecond = stash.derivativeSecond;
   let derivativeZeroFraction = stash.derivativeZeroFraction;
@@ -478,6 +534,9 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     allZero: undefined,
     reluGated: undefined,
     curvature: undefined,
+    // set after the rule by the layer rule (a rectifier's sum) and the walk (tidyGradient): keys from the start too
+    homogeneousSum: undefined,
+    eulerSum: undefined,
   };
   // δ·φ'(x) with a Gaussian δ independent of x ~ N(0, q) is a Gaussian scale mixture over |φ'(x)| (gradient
   // independence, Schoenholz et al. 2017); GELU' and SiLU' cross zero and tanh', sigmoid' and softplus' fade in their
@@ -554,7 +613,9 @@ export function pointwiseBackward(name: string, stash: ActivationStash, output: 
     // (the rectifiers and the identity have φ'(h)·h = φ(h) exactly: nothing to limit)
     if (!HOMOGENEOUS.has(name) && self.outputSecond > 0) limitTangent(gradient.curvature, tangentSecond(name, stash) / self.outputSecond, (d2 * stash.input.q) / self.outputSecond);
   }
-  return { gradient, ratio, rule };
+  BACKWARD_RATIO[0] = ratio;
+  backwardText = rule;
+  return gradient;
 }
 
 const HOMOGENEOUS: ReadonlySet<string> = new Set(["relu", "leaky-relu", "identity"]);
@@ -712,15 +773,14 @@ export const activationRule: AnalyticRule<ActivationStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {
     const spec = layer.spec as ActivationLayer;
     if (spec.activation === "softmax") return softmaxForward(ctx, layer, input);
-    const result = pointwiseForward(ctx, spec.activation, spec.slope, input, positionCount(layer.input));
-    return {
-      output: result.output,
-      factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCE)] : NO_FACTORS,
-      role: "activation",
-      inner: NO_INNER,
-      hazards: NO_HAZARDS,
-      stash: result.stash,
-    };
+    const stash = pointwiseStash(ctx, spec.activation, spec.slope, input, positionCount(layer.input));
+    const output = stash.output as Signal;
+    let factors = NO_FACTORS;
+    if (ctx.ledger) {
+      const ratio = forwardRatio(input, output);
+      factors = [factor(ratio, forwardRuleOf(spec.activation, input, ratio), SOURCE)];
+    }
+    return { output, factors, role: "activation", inner: NO_INNER, hazards: NO_HAZARDS, stash };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
     const spec = layer.spec as ActivationLayer;
@@ -735,9 +795,9 @@ export const activationRule: AnalyticRule<ActivationStash> = {
         weightGradients: [],
       };
     }
-    const result = pointwiseBackward(spec.activation, stash, output, ctx.ledger);
+    const gradient = pointwiseGradient(spec.activation, stash, output, ctx.ledger);
+    const factors = ctx.ledger ? [factor(BACKWARD_RATIO[0] as number, backwardText, SOURCES.backward)] : NO_FACTORS;
     const gate = output.channelGate;
-    const gradient = result.gradient;
     if (gate !== undefined && ctx.batch > 1 && gradient.q > 0) {
       // the norm's x̂ term takes N·q·correction from each channel's gated sum over batch × pixels (Gradient.channelGate):
       // the (B − 1)·P pairs of two samples, at one position or two, lose it (own algebra)
@@ -753,7 +813,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       // where the loss's curvature is carried: the sum also holds its part there, which the layer below adds as its own
       gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output) + eulerShare(output, layer);
     }
-    return { input: result.gradient, factors: ctx.ledger ? [factor(result.ratio, result.rule, SOURCES.backward)] : NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
+    return { input: gradient, factors, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },
 };
 

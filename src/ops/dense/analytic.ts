@@ -367,7 +367,8 @@ export function densePullback(m: Curvature, v: number, outWidth: number, inWidth
   // E[M'_ii·tr M'], which the independent-entries count overshoots through many narrow layers
   const counted = diagonalSquare + (inWidth - 1) * v * v * frobenius;
   const rowSquares = m.indefinite === true ? counted : Math.min(counted, diagonalSquare + (inWidth - 1) * diagonal * diagonal);
-  const pulled: Curvature = { diagonal, diagonalSquare, rowSquares };
+  // (the pair marks, which linearBackward sets on it, are keys from the start: a key added later grows an out-of-object store)
+  const pulled: Curvature = { diagonal, diagonalSquare, rowSquares, paired: undefined, alignedPair: undefined };
   keepMarks(m, pulled);
   // Wᵀ·A·W stays non-symmetric; E_i[Cov(x_i, (Wᵀg)_i)²] = v·fan_out·E[C²] against v·fan_in·E[C²] above, C_ja =
   // Cov(x_j, g_a) independent of W (own algebra)
