@@ -223,6 +223,22 @@ export function crossCorrelationOf(s: Signal | Gradient): number {
 }
 
 /**
+ * {@link sampleCorrelationOf}, {@link positionCorrelationOf} and {@link crossCorrelationOf} of one signal or gradient,
+ * written into `out` at `at`, `at + 1`, `at + 2`: the same numbers, but as raw doubles, where each call the optimiser
+ * did not inline boxed its result in a heap number (several per layer of both passes)
+ */
+export function pairCorrelationsInto(s: Signal | Gradient, out: Float64Array, at: number): void {
+  const sample = sampleCorrelationOf(s);
+  out[at] = sample;
+  out[at + 1] = s.positionCorrelation === undefined ? sample : clampCorrelation(s.positionCorrelation);
+  const cross = (s as { crossCorrelation?: number }).crossCorrelation;
+  out[at + 2] = cross !== undefined ? clampCorrelation(cross) : sample;
+}
+
+/** pairCorrelationsInto's scratch for gradientSum: the input's three, then the gradient's */
+const SUM_PAIRS = new Float64Array(6);
+
+/**
  * Mean correlation over all pairs of the batch × positions terms: two positions of one sample (ρ_position), one
  * position of two samples (ρ_sample), two positions of two samples (ρ_cross, by default ρ_sample).
  */
@@ -287,10 +303,13 @@ export function gradientBetween(batch: number, positions: number, delta: Gradien
  * (`input` omitted), the sum of the gradient itself, as for a bias.
  */
 export function gradientSum(batch: number, positions: number, delta: Gradient, input?: Signal): number {
-  if (input === undefined) return correlatedSum(batch, positions, delta.q, sampleCorrelationOf(delta), positionCorrelationOf(delta), crossCorrelationOf(delta));
-  const sample = sampleCorrelationOf(input) * sampleCorrelationOf(delta);
-  const cross = crossCorrelationOf(input) * crossCorrelationOf(delta);
-  return correlatedSum(batch, positions, input.q * delta.q, sample, positionCorrelationOf(input) * positionCorrelationOf(delta), cross);
+  const pairs = SUM_PAIRS;
+  pairCorrelationsInto(delta, pairs, 3);
+  if (input === undefined) return correlatedSum(batch, positions, delta.q, pairs[3] as number, pairs[4] as number, pairs[5] as number);
+  pairCorrelationsInto(input, pairs, 0);
+  const sample = (pairs[0] as number) * (pairs[3] as number);
+  const cross = (pairs[2] as number) * (pairs[5] as number);
+  return correlatedSum(batch, positions, input.q * delta.q, sample, (pairs[1] as number) * (pairs[4] as number), cross);
 }
 
 /**

@@ -8,11 +8,11 @@ import { featureWidth, positionCount, sampleElements } from "../../graph/shape.j
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
-import { activationFunction } from "../../numeric/activations.js";
+import { activationFunction, activationMoments, transientMoments } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardUnitKappa, forwardUnitKappa } from "../unit-pairs.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
@@ -341,7 +341,8 @@ function forwardRuleOf(name: ActivationName, input: Signal, ratio: number): Text
 function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, input: Signal, positions: number): ActivationStash {
   const keep = 1 - input.zeroFraction;
   const qNonzero = keep > 0 ? input.q / keep : 0;
-  const m = ctx.moments(name, qNonzero, slope);
+  // the moments are read here and kept by none of the results: check's own function gives ReLU's in a reused object
+  const m = ctx.moments === activationMoments ? transientMoments(name, qNonzero, slope) : ctx.moments(name, qNonzero, slope);
   const f0 = valueAtZero(name);
   const d0 = derivativeAtZero(name, slope);
   const q = keep * m.second + input.zeroFraction * f0 * f0;
@@ -361,7 +362,8 @@ function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, inp
   const crossDerivative = CROSS[1] as number;
   const shared = keep * keep * crossValue + (1 - keep * keep) * f0 * f0;
   // two positions of one sample: the same map at their correlation (Poole et al. 2016, correlation map)
-  const positionCorrelation = positionCorrelationOf(input);
+  pairCorrelationsInto(input, INPUT_PAIRS, 0);
+  const positionCorrelation = INPUT_PAIRS[1] as number;
   // (the same moments when the two correlations agree: one sample per position)
   if (positionCorrelation !== correlation) crossPair(name, slope, qNonzero, positionCorrelation, m);
   const positionValue = CROSS[0] as number;
@@ -408,7 +410,7 @@ function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, inp
   }
   const derivativeZeroFraction = name === "relu" ? input.zeroFraction + keep * 0.5 : 0;
   // a ReLU unit is off for the whole step when its pre-activation is ≤ 0 at every term
-  const allOff = name === "relu" && qNonzero > 0 ? allBelowZero(meanPairCorrelation(ctx.batch, positions, sampleCorrelationOf(input), positionCorrelation), ctx.batch * positions) : 0;
+  const allOff = name === "relu" && qNonzero > 0 ? allBelowZero(meanPairCorrelation(ctx.batch, positions, INPUT_PAIRS[0] as number, positionCorrelation), ctx.batch * positions) : 0;
   if (allOff > 0) output.allZero = allOff;
   // two features' covariance to first order: Cov(φ(u_i), φ(u_j)) = E[φ']²·Cov(u_i, u_j) (Price's theorem, Gaussian u);
   // the field holds its square over q², hence E[φ']⁴
@@ -426,6 +428,9 @@ function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, inp
     output,
   };
 }
+
+/** pointwiseStash's pair correlations of its input (pairCorrelationsInto) */
+const INPUT_PAIRS = new Float64Array(3);
 
 /**
  * x ** 4 for the last x asked: a stack's rectifiers have one E[φ'] (1/2 for ReLU on a dense layer's output), so most

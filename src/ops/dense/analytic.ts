@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -252,12 +252,15 @@ export function linearBackward(
   // gradientBetween (src/ops/common.ts) inlined, the same arithmetic on the same six. Calling them made predict 2–7%
   // slower on the 1,000-layer bench spec (measured Dec 2026: both builds in one process, called alternately on 100 fresh
   // variants with a young generation large enough that no collection fell in a call, 4 runs in both orders)
-  const xSample = sampleCorrelationOf(x);
-  const xPosition = positionCorrelationOf(x);
-  const xCross = crossCorrelationOf(x);
-  const dSample = sampleCorrelationOf(output);
-  const dPosition = positionCorrelationOf(output);
-  const dCross = crossCorrelationOf(output);
+  const pairs = BACKWARD_PAIRS;
+  pairCorrelationsInto(x, pairs, 0);
+  pairCorrelationsInto(output, pairs, 3);
+  const xSample = pairs[0] as number;
+  const xPosition = pairs[1] as number;
+  const xCross = pairs[2] as number;
+  const dSample = pairs[3] as number;
+  const dPosition = pairs[4] as number;
+  const dCross = pairs[5] as number;
   const xq = x.q * output.q;
   let weightSum = correlatedSum(ctx.batch, positions, xq, xSample * dSample, xPosition * dPosition, xCross * dCross);
   const bias = maybeWeight(layer, "bias");
@@ -348,6 +351,9 @@ export function linearBackward(
     hazards,
   };
 }
+
+/** linearBackward's pair correlations of input and gradient (pairCorrelationsInto) */
+const BACKWARD_PAIRS = new Float64Array(6);
 
 /**
  * Curvature M' = Wᵀ·M·W of a dense layer's input, W [outWidth, inWidth] with independent entries of variance v:
