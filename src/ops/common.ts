@@ -228,11 +228,19 @@ export function crossCorrelationOf(s: Signal | Gradient): number {
  * did not inline boxed its result in a heap number (several per layer of both passes)
  */
 export function pairCorrelationsInto(s: Signal | Gradient, out: Float64Array, at: number): void {
-  const sample = sampleCorrelationOf(s);
+  // the three functions' arithmetic written out (clampCorrelation's too): a call the optimiser leaves out of line
+  // returns its number boxed
+  const q = s.q;
+  let sample = 0;
+  if (q > 0) {
+    const c = (s.shared ?? ("mean" in s ? s.mean * s.mean : 0)) / q;
+    sample = Number.isFinite(c) ? Math.min(Math.max(c, -1), 1) : 0;
+  }
   out[at] = sample;
-  out[at + 1] = s.positionCorrelation === undefined ? sample : clampCorrelation(s.positionCorrelation);
+  const position = s.positionCorrelation;
+  out[at + 1] = position === undefined ? sample : Number.isFinite(position) ? Math.min(Math.max(position, -1), 1) : 0;
   const cross = (s as { crossCorrelation?: number }).crossCorrelation;
-  out[at + 2] = cross !== undefined ? clampCorrelation(cross) : sample;
+  out[at + 2] = cross === undefined ? sample : Number.isFinite(cross) ? Math.min(Math.max(cross, -1), 1) : 0;
 }
 
 /** pairCorrelationsInto's scratch for gradientSum: the input's three, then the gradient's */

@@ -429,6 +429,9 @@ function pointwiseStash(ctx: OpContext, name: ActivationName, slope: number, inp
   };
 }
 
+/** pointwiseGradient's pair correlations of the gradient at its output (pairCorrelationsInto) */
+const GRADIENT_PAIRS = new Float64Array(3);
+
 /** pointwiseStash's pair correlations of its input (pairCorrelationsInto) */
 const INPUT_PAIRS = new Float64Array(3);
 
@@ -567,14 +570,16 @@ function pointwiseGradient(name: string, stash: ActivationStash, output: Gradien
   if (output.cosineSquare !== undefined && derivativeSecond > 0) gradient.cosineSquare = Math.min((sampleCross / derivativeSecond) ** 2 * output.cosineSquare, 1);
   let ratio = derivativeSecond;
   if (output.shared !== undefined) gradient.shared = sampleCross * output.shared;
-  if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * positionCorrelationOf(output)) / derivativeSecond, 1);
+  const pairs = GRADIENT_PAIRS;
+  pairCorrelationsInto(output, pairs, 0);
+  if (derivativeSecond > 0) gradient.positionCorrelation = Math.min((positionCross * (pairs[1] as number)) / derivativeSecond, 1);
   // two samples at two positions: the derivatives pair as two samples' do
   if (output.crossCorrelation !== undefined && derivativeSecond > 0) gradient.crossCorrelation = Math.min((sampleCross * output.crossCorrelation) / derivativeSecond, 1);
   const allZero = 1 - (1 - stash.allOff) * (1 - (output.allZero ?? 0));
   if (allZero > 0) gradient.allZero = allZero;
   // Euler's theorem: u·φ'(u) = φ(u) for a positively homogeneous φ, so Σ u·δ_u = Σ φ(u)·δ_φ
   if (output.homogeneousSum !== undefined && (name === "relu" || name === "leaky-relu")) gradient.homogeneousSum = output.homogeneousSum;
-  if (name === "relu" && k === undefined) gradient.reluGated = { sample: sampleCorrelationOf(output), position: positionCorrelationOf(output), cross: crossCorrelationOf(output) };
+  if (name === "relu" && k === undefined) gradient.reluGated = { sample: pairs[0] as number, position: pairs[1] as number, cross: pairs[2] as number };
   const curvature = output.curvature;
   if (curvature !== undefined && k === undefined) {
     // M'' = Φ'·M·Φ' with Φ' = diag(φ'): on the diagonal E[φ'²] (a smooth unit's φ·φ'' too: hessianDiagonal), off it
