@@ -591,8 +591,11 @@ function pointwiseGradient(name: string, stash: ActivationStash, output: Gradien
     // E[φ'²φ²]·E[M_ii²], not E[φ'²]·E[φ²]·E[M_ii²], and two samples' pair likewise (selfPair) where the dense layer
     // above handed on their pair; elsewhere its mean over the data, E[φ'φ]·M_ii, is the same for every sample (a
     // shared part the bias gradient sums coherently)
-    const self = selfMoments(name, stash, curvature.centred === true);
-    gradient.q = Math.max(gradient.q + curvature.diagonalSquare * (self.second - d2 * self.outputSecond), 0);
+    selfMoments(name, stash, curvature.centred === true);
+    const selfMean = SELF[0] as number;
+    const selfSecond = SELF[1] as number;
+    const selfOutputSecond = SELF[2] as number;
+    gradient.q = Math.max(gradient.q + curvature.diagonalSquare * (selfSecond - d2 * selfOutputSecond), 0);
     if (output.q > 0) ratio = gradient.q / output.q;
     if (ledger) rule = selfGateRule(name, derivativeSecond, ratio);
     const skip = curvature.skip;
@@ -608,7 +611,7 @@ function pointwiseGradient(name: string, stash: ActivationStash, output: Gradien
       // the residual seed wrote that part on the branch output, as x's best linear estimate from φ(u), which holds
       // r = E[φ']²·q_u/E[φ²] of what u holds of x (Stein's lemma; r ≤ 1 by Cauchy–Schwarz): below, where u sees all
       // of it, the part is 1/r as large (own algebra: x's linear estimate from u, not from φ(u))
-      const r = self.outputSecond > 0 ? Math.min((off * stash.input.q) / self.outputSecond, 1) : 1;
+      const r = selfOutputSecond > 0 ? Math.min((off * stash.input.q) / selfOutputSecond, 1) : 1;
       const grow = r > 0 ? 1 / (r * r) : 1;
       const rowSquares = grow * (d2 * d2 * skip.diagonalSquare + off * off * Math.max(skip.rowSquares - skip.diagonalSquare, 0));
       const diagonalSquare = grow * d2 * d2 * skip.diagonalSquare;
@@ -616,12 +619,12 @@ function pointwiseGradient(name: string, stash: ActivationStash, output: Gradien
       gradient.curvature.diagonalSquare += diagonalSquare * (1 - 1 / grow);
       gradient.curvature.skip = { rowSquares, diagonalSquare, covariance: stein.below * skip.covariance };
     }
-    const ownPair = curvature.paired === true ? own * selfPair(name, stash, self, sampleCross, curvature.centred === true) : own * self.mean * self.mean;
+    const ownPair = curvature.paired === true ? own * selfPair(name, stash, selfMean, selfSecond, sampleCross, curvature.centred === true) : own * selfMean * selfMean;
     gradient.shared = Math.min((gradient.shared ?? 0) + ownPair + skipMean, gradient.q);
     // below this unit the self parts read y ≈ J·h through φ'(h)·h in place of φ(h): a saturating φ makes that path
     // outgrow the output (a chaotic tanh stack: ×χ per layer), which the curvature must not pass on as the gradient's
     // (the rectifiers and the identity have φ'(h)·h = φ(h) exactly: nothing to limit)
-    if (!HOMOGENEOUS.has(name) && self.outputSecond > 0) limitTangent(gradient.curvature, tangentSecond(name, stash) / self.outputSecond, (d2 * stash.input.q) / self.outputSecond);
+    if (!HOMOGENEOUS.has(name) && selfOutputSecond > 0) limitTangent(gradient.curvature, tangentSecond(name, stash) / selfOutputSecond, (d2 * stash.input.q) / selfOutputSecond);
   }
   BACKWARD_RATIO[0] = ratio;
   backwardText = rule;
@@ -719,12 +722,12 @@ const NO_MOMENTS = { mean: 0, second: 0, derivativeMean: 0, derivativeSecond: 0 
  * + the rest of E[g²] at c² (Mehler's formula, the first two terms exact). Without the part above it was E[g]² alone,
  * and a deep ReLU stack's weight gradients were up to 0.6 binade low (measured Dec 2026, 16 draws)
  */
-function selfPair(name: string, stash: ActivationStash, self: { mean: number; second: number }, sampleCross: number, centred: boolean): number {
+function selfPair(name: string, stash: ActivationStash, selfMean: number, selfSecond: number, sampleCross: number, centred: boolean): number {
   const input = stash.input;
   const keep = 1 - input.zeroFraction;
   const q = keep > 0 ? input.q / keep : 0;
   const out = stash.output;
-  if (!(q > 0) || out === undefined) return self.mean * self.mean;
+  if (!(q > 0) || out === undefined) return selfMean * selfMean;
   const c = input.shared !== undefined ? Math.min(Math.max(input.shared / input.q, -1), 1) : 0;
   const at = activationFunction(name as ActivationName, stash.slope);
   // E[(φ_a − c0)(φ_b − c0)] = E[φ_aφ_b] − c0² for c0 = E[φ] (the centred curvature's), E[φ_aφ_b] itself otherwise
@@ -733,21 +736,22 @@ function selfPair(name: string, stash: ActivationStash, self: { mean: number; se
   let pair: number;
   if (!centred && HOMOGENEOUS.has(name)) {
     const a = name === "leaky-relu" ? (stash.slope ?? 0) : name === "identity" ? 1 : 0;
-    pair = keep * keep * crossMoments("leaky-relu", a * a, q, c, NO_MOMENTS).value;
+    crossPair("leaky-relu", a * a, q, c, NO_MOMENTS);
+    pair = keep * keep * (CROSS[0] as number);
   } else {
     const ug = (keep * gaussianExpectationSplit((u) => u * at.df(u) * (at.f(u) - c0), q)) / Math.sqrt(q);
-    const a0 = self.mean * self.mean;
+    const a0 = selfMean * selfMean;
     const a1 = ug * ug;
-    pair = a0 + a1 * c + Math.max(self.second - a0 - a1, 0) * c * c;
+    pair = a0 + a1 * c + Math.max(selfSecond - a0 - a1, 0) * c * c;
   }
   return pair - sampleCross * outPair;
 }
 
 /**
- * E[φ'(u)·φ(u)], E[φ'(u)²·φ(u)²] and E[φ(u)²] of an activation's input u (its zeros mapped through φ(0), φ'(0)):
+ * E[φ'(u)·φ(u)], E[φ'(u)²·φ(u)²] and E[φ(u)²] of an activation's input u, written into SELF (its zeros mapped through φ(0), φ'(0)):
  * closed forms for the rectifiers and the identity (half-normal moments), quadrature for the smooth ones.
  */
-function selfMoments(name: string, stash: ActivationStash, centred: boolean): { mean: number; second: number; outputSecond: number } {
+function selfMoments(name: string, stash: ActivationStash, centred: boolean): void {
   const input = stash.input;
   const keep = 1 - input.zeroFraction;
   const q = keep > 0 ? input.q / keep : 0;
@@ -772,12 +776,12 @@ function selfMoments(name: string, stash: ActivationStash, centred: boolean): { 
   // an element the input holds at zero maps to φ(0)·φ'(0) (relu'(0) = 0 as implementations define it)
   const zeroValue = (at.f(0) - c) * at.df(0);
   const zeroOutput = (at.f(0) - c) * (at.f(0) - c);
-  return {
-    mean: keep * mean + input.zeroFraction * zeroValue,
-    second: keep * second + input.zeroFraction * zeroValue * zeroValue,
-    outputSecond: keep * outputSecond + input.zeroFraction * zeroOutput,
-  };
+  SELF[0] = keep * mean + input.zeroFraction * zeroValue;
+  SELF[1] = keep * second + input.zeroFraction * zeroValue * zeroValue;
+  SELF[2] = keep * outputSecond + input.zeroFraction * zeroOutput;
 }
+/** selfMoments' E[φ'φ], E[φ'²φ²] and E[φ²], as raw doubles (read right after the call: no object per layer) */
+const SELF = new Float64Array(3);
 
 export const activationRule: AnalyticRule<ActivationStash> = {
   forward(ctx: OpContext, layer: GraphLayer, input: Signal): ForwardResult<ActivationStash> {
