@@ -2,7 +2,7 @@
 import { featureWidth } from "../graph/shape.js";
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
 import type { InitSpec } from "../spec/types.js";
-import type { Curvature, Factor, Gradient, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
+import type { Curvature, Factor, Gradient, HazardRecords, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
@@ -439,6 +439,94 @@ export function backwardSumHazard(details: boolean, products: Gradient, terms: n
     detail: details ? transposedWords(what, terms) : "",
     makes,
   };
+}
+
+/**
+ * New hazard records for OpContext.hazardRecords, in the key order of the records the functions above make (a
+ * forward accumulation as linearForward's, weightSumHazard's, backwardSumHazard's), each one written whole on every use.
+ */
+export function hazardRecords(): HazardRecords {
+  const signal = hazardInput({ q: 0, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true }, 0, "gaussian");
+  return {
+    accumulation: [{ kind: "accumulation", input: signal, inputElements: 0, output: signal, outputElements: 0, terms: 0, guarded: false, detail: "" }],
+    sums: [
+      { kind: "accumulation", input: productTerms(0, 0, 0), inputElements: 0, terms: 0, guarded: false, detail: "", makes: "" },
+      { kind: "accumulation", input: productTerms(0, 0, 0), inputElements: 0, output: signal, outputElements: 0, terms: 0, guarded: false, detail: "", makes: "" },
+    ],
+  };
+}
+
+/**
+ * linearForward's accumulation hazard written into the records (the same numbers as a new one): the products w·x of a
+ * signal `input` whose second moment becomes `q` (hazardInput's fields), summed over `terms` per output element.
+ */
+export function accumulationInto(records: HazardRecords, input: Signal, q: number, inputElements: number, output: Signal, outputElements: number, terms: number, detail: Text): OpHazard[] {
+  const list = records.accumulation;
+  const h = list[0] as OpHazard;
+  const m = h.input as Signal;
+  m.q = q;
+  m.mean = 0;
+  m.zeroFraction = input.zeroFraction;
+  m.shape = "gaussian";
+  m.logVar = input.logVar;
+  m.gaussian = true;
+  m.bound = input.bound;
+  m.elementLog2Spread = input.elementLog2Spread;
+  m.tail = input.tail;
+  m.shared = input.shared;
+  m.positionCorrelation = input.positionCorrelation;
+  h.inputElements = inputElements;
+  h.output = output;
+  h.outputElements = outputElements;
+  h.terms = terms;
+  h.guarded = false;
+  h.detail = detail;
+  return list;
+}
+
+/**
+ * linearBackward's two sums written into the records (the same numbers as weightSumHazard's and transposedHazard's):
+ * the weight gradient's products x·δ over `terms`, then δ_in = Wᵀ·δ over the weight's fan-out into `made`.
+ */
+export function linearSumsInto(
+  records: HazardRecords,
+  details: boolean,
+  weight: GraphWeight,
+  x: Signal | Gradient,
+  delta: Gradient,
+  terms: number,
+  variance: number,
+  made: Gradient,
+  elements: number,
+  what: string,
+): OpHazard[] {
+  const list = records.sums;
+  const sum = list[0] as OpHazard;
+  setProductTerms(sum.input as Gradient, x.q * delta.q, 1 - (1 - x.zeroFraction) * (1 - delta.zeroFraction), x.logVar + delta.logVar);
+  sum.inputElements = weight.elements * terms;
+  sum.terms = terms;
+  sum.guarded = false;
+  sum.detail = details ? weightSumWords("weight-gradient", terms) : "";
+  sum.makes = "weight-gradient";
+  const fanOut = weight.fanOut;
+  const transposed = list[1] as OpHazard;
+  setProductTerms(transposed.input as Gradient, variance * delta.q, delta.zeroFraction, delta.logVar);
+  transposed.inputElements = elements * fanOut;
+  transposed.output = made;
+  transposed.outputElements = elements;
+  transposed.terms = fanOut;
+  transposed.guarded = false;
+  transposed.detail = details ? transposedWords(what, fanOut) : "";
+  transposed.makes = "input";
+  return list;
+}
+
+/** productTerms' fields written into `g`. */
+function setProductTerms(g: Gradient, q: number, zeroFraction: number, logVar: number): void {
+  g.q = q;
+  g.zeroFraction = Math.min(Math.max(zeroFraction, 0), 1);
+  g.shape = "gaussian";
+  g.logVar = logVar;
 }
 
 /**

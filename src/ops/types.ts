@@ -379,6 +379,18 @@ export interface OpContext {
   variance(weight: GraphWeight): number;
   /** memoised Gaussian expectations of an activation at input variance q */
   moments(name: ActivationName, q: number, slope: number): ActivationMoments;
+  /**
+   * hazard records the dense and convolution rules fill in place of new ones, for a caller that reads each rule's
+   * hazards (and their inputs) before it calls the next rule and keeps none of them (src/magnitude/predict.ts); absent:
+   * every hazard is a new object, as a caller that keeps a rule's results needs
+   */
+  hazardRecords?: HazardRecords;
+}
+
+/** See OpContext.hazardRecords: one forward accumulation, and a backward weight sum and transposed sum. */
+export interface HazardRecords {
+  readonly accumulation: OpHazard[];
+  readonly sums: OpHazard[];
 }
 
 /** A tensor inside a layer besides its output (attention logits, the gated product...). */

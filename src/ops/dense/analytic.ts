@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, accumulationInto, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, linearSumsInto, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -56,23 +56,27 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   }
   const ratio = input.q > 0 ? q / input.q : 0;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
+  const records = ctx.hazardRecords;
   return {
     output,
     factors: ctx.ledger ? [factor(ratio, linearForwardRule(kind, gain, biasVariance), SOURCES.lengthMap)] : NO_FACTORS,
     role: "pre-activation",
     inner: NO_INNER,
-    hazards: [
-      {
-        kind: "accumulation",
-        input: hazardInput(input, input.q * variance, "gaussian"),
-        inputElements: ctx.batch * perSample * w.fanIn,
-        output,
-        outputElements: ctx.batch * perSample,
-        terms: w.fanIn,
-        guarded: false,
-        detail: ctx.details ? accumulationDetail(kind, w.fanIn) : "",
-      },
-    ],
+    hazards:
+      records !== undefined
+        ? accumulationInto(records, input, input.q * variance, ctx.batch * perSample * w.fanIn, output, ctx.batch * perSample, w.fanIn, ctx.details ? accumulationDetail(kind, w.fanIn) : "")
+        : [
+            {
+              kind: "accumulation",
+              input: hazardInput(input, input.q * variance, "gaussian"),
+              inputElements: ctx.batch * perSample * w.fanIn,
+              output,
+              outputElements: ctx.batch * perSample,
+              terms: w.fanIn,
+              guarded: false,
+              detail: ctx.details ? accumulationDetail(kind, w.fanIn) : "",
+            },
+          ],
     stash: { input, output },
   };
 }
@@ -339,10 +343,12 @@ export function linearBackward(
   // the sums this backward pass accumulates: the weight gradient over batch × positions, and δ_in = Wᵀ·δ_out over the
   // weight's fan-out (out-channels × k² for a convolution at stride 1, the most any input pixel meets)
   const w = weightOf(layer, "weight");
-  const hazards = [
-    weightSumHazard(ctx.details, w, "weight-gradient", x, output, terms),
-    transposedHazard(ctx.details, variance, output, w.fanOut, input, ctx.batch * sampleElements(layer.input), "input", layer.family === "dense" ? "dense Wᵀ·δ" : "conv2d Wᵀ·δ"),
-  ];
+  const records = ctx.hazardRecords;
+  const what = layer.family === "dense" ? "dense Wᵀ·δ" : "conv2d Wᵀ·δ";
+  const hazards =
+    records !== undefined
+      ? linearSumsInto(records, ctx.details, w, x, output, terms, variance, input, ctx.batch * sampleElements(layer.input), what)
+      : [weightSumHazard(ctx.details, w, "weight-gradient", x, output, terms), transposedHazard(ctx.details, variance, output, w.fanOut, input, ctx.batch * sampleElements(layer.input), "input", what)];
   return {
     input,
     factors: ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS,
