@@ -443,11 +443,19 @@ export function backwardSumHazard(details: boolean, products: Gradient, terms: n
 
 /**
  * New hazard records for OpContext.hazardRecords, in the key order of the records the functions above make (a
- * forward accumulation as linearForward's, weightSumHazard's, backwardSumHazard's), each one written whole on every use.
+ * forward accumulation as linearForward's, weightSumHazard's, backwardSumHazard's, linearBackward's moments), each one
+ * written whole on every use.
  */
 export function hazardRecords(): HazardRecords {
   const signal = hazardInput({ q: 0, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true }, 0, "gaussian");
+  // the moments' key order as linearBackward's literals (the bias has no alignedQ)
+  const weight: WeightGradientMoment = { weight: "weight", q: 0, alignedQ: 0, betweenQ: 0, coherentQ: 0, terms: 0, zeroFraction: 0, logVar: 0, rule: "" };
+  const bias: WeightGradientMoment = { weight: "bias", q: 0, betweenQ: 0, coherentQ: 0, terms: 0, zeroFraction: 0, logVar: 0, rule: "" };
   return {
+    weight,
+    bias,
+    weightOnly: [weight],
+    weightAndBias: [weight, bias],
     accumulation: [{ kind: "accumulation", input: signal, inputElements: 0, output: signal, outputElements: 0, terms: 0, guarded: false, detail: "" }],
     sums: [
       { kind: "accumulation", input: productTerms(0, 0, 0), inputElements: 0, terms: 0, guarded: false, detail: "", makes: "" },

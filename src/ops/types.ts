@@ -387,10 +387,17 @@ export interface OpContext {
   hazardRecords?: HazardRecords;
 }
 
-/** See OpContext.hazardRecords: one forward accumulation, and a backward weight sum and transposed sum. */
+/**
+ * See OpContext.hazardRecords: one forward accumulation, a backward weight sum and transposed sum, and the dense and
+ * convolution rules' weight and bias gradient moments with their two lists ([weight], [weight, bias])
+ */
 export interface HazardRecords {
   readonly accumulation: OpHazard[];
   readonly sums: OpHazard[];
+  readonly weight: WeightGradientMoment;
+  readonly bias: WeightGradientMoment;
+  readonly weightOnly: WeightGradientMoment[];
+  readonly weightAndBias: WeightGradientMoment[];
 }
 
 /** A tensor inside a layer besides its output (attention logits, the gated product...). */

@@ -274,35 +274,52 @@ export function linearBackward(
     const fanIn = weightOf(layer, "weight").fanIn;
     weightSum = weightSum * (1 - 1 / fanIn) + output.homogeneousSum / (fanIn * fanIn * variance);
   }
-  const weightMoment: WeightGradientMoment = {
-    weight: "weight",
-    q: weightSum + aligned,
-    alignedQ: aligned,
-    betweenQ: betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross),
-    coherentQ: terms * terms * x.q * output.q,
-    terms,
-    zeroFraction: 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0)),
-    logVar: x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements),
-    rule: ctx.ledger ? weightSumRule(terms) : "",
-  };
+  const records = ctx.hazardRecords;
+  let weightMoment: WeightGradientMoment;
+  const weightQ = weightSum + aligned;
+  const weightBetween = betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross);
+  const weightCoherent = terms * terms * x.q * output.q;
+  const weightZero = 1 - (1 - deltaZero) * (1 - (x.allZero ?? 0));
+  const weightLogVar = x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements);
+  const weightRule = ctx.ledger ? weightSumRule(terms) : "";
+  if (records !== undefined) {
+    // the walk's record (OpContext.hazardRecords), every field written
+    weightMoment = records.weight;
+    weightMoment.q = weightQ;
+    weightMoment.alignedQ = aligned;
+    weightMoment.betweenQ = weightBetween;
+    weightMoment.coherentQ = weightCoherent;
+    weightMoment.terms = terms;
+    weightMoment.zeroFraction = weightZero;
+    weightMoment.logVar = weightLogVar;
+    weightMoment.rule = weightRule;
+  } else {
+    weightMoment = { weight: "weight", q: weightQ, alignedQ: aligned, betweenQ: weightBetween, coherentQ: weightCoherent, terms, zeroFraction: weightZero, logVar: weightLogVar, rule: weightRule };
+  }
   let weightGradients: WeightGradientMoment[];
-  if (bias === undefined) weightGradients = [weightMoment];
+  if (bias === undefined) weightGradients = records !== undefined ? records.weightOnly : [weightMoment];
   else {
     const biasSum = correlatedSum(ctx.batch, positions, output.q, dSample, dPosition, dCross);
-    // one list of its final length (a push grew the list's store on every layer of both passes)
-    weightGradients = [
-      weightMoment,
-      {
-        weight: "bias",
-        q: biasSum,
-        betweenQ: betweenBatches(ctx.batch, positions, output.q, dSample, dCross),
-        coherentQ: terms * terms * output.q,
-        terms,
-        zeroFraction: deltaZero,
-        logVar: sumLogVarOf(output, biasSum, terms * output.q, bias.elements),
-        rule: ctx.ledger ? biasSumRule(terms) : "",
-      },
-    ];
+    const biasBetween = betweenBatches(ctx.batch, positions, output.q, dSample, dCross);
+    const biasLogVar = sumLogVarOf(output, biasSum, terms * output.q, bias.elements);
+    const biasRule = ctx.ledger ? biasSumRule(terms) : "";
+    if (records !== undefined) {
+      const biasMoment = records.bias;
+      biasMoment.q = biasSum;
+      biasMoment.betweenQ = biasBetween;
+      biasMoment.coherentQ = terms * terms * output.q;
+      biasMoment.terms = terms;
+      biasMoment.zeroFraction = deltaZero;
+      biasMoment.logVar = biasLogVar;
+      biasMoment.rule = biasRule;
+      weightGradients = records.weightAndBias;
+    } else {
+      // one list of its final length (a push grew the list's store on every layer of both passes)
+      weightGradients = [
+        weightMoment,
+        { weight: "bias", q: biasSum, betweenQ: biasBetween, coherentQ: terms * terms * output.q, terms, zeroFraction: deltaZero, logVar: biasLogVar, rule: biasRule },
+      ];
+    }
   }
   const input = linearGradient(gain * output.q, output.logVar, inWidth);
   if (layer.family === "dense" && positions > 1) transposedUnitSpread(input, output, inWidth, gradientPairs(ctx.batch, positions, positions, weightOf(layer, "weight").fanOut, output, true), true);
@@ -343,7 +360,6 @@ export function linearBackward(
   // the sums this backward pass accumulates: the weight gradient over batch × positions, and δ_in = Wᵀ·δ_out over the
   // weight's fan-out (out-channels × k² for a convolution at stride 1, the most any input pixel meets)
   const w = weightOf(layer, "weight");
-  const records = ctx.hazardRecords;
   const what = layer.family === "dense" ? "dense Wᵀ·δ" : "conv2d Wᵀ·δ";
   const hazards =
     records !== undefined
