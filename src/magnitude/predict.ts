@@ -7,7 +7,7 @@
 import { batchShape, positionCount, sameShape, sampleElements } from "../graph/shape.js";
 import type { Graph, GraphLayer, GraphWeight, SampleShape } from "../graph/types.js";
 import { activationMoments } from "../ops/activation/moments.js";
-import { fmt, hazardRecords, initSource, maybeWeight, textOf } from "../ops/common.js";
+import { fmt, ruleRecords, initSource, maybeWeight, textOf } from "../ops/common.js";
 import { residualBranchSeed, type ResidualStash } from "../ops/residual/analytic.js";
 import { ruleFor } from "../ops/registry.js";
 import type { BranchResults, Factor, Gradient, InnerGradient, InnerTensor, OpContext, OpHazard, Signal, WeightGradientMoment } from "../ops/types.js";
@@ -232,7 +232,7 @@ class Phase {
       variance: phase === "end" ? (w) => (w.distribution === "zeros" ? (this.endVariance.get(w) ?? w.variance * growth2) : w.variance * growth2) : (w) => w.variance,
       moments: activationMoments,
       // the dense and convolution rules' hazards, which this walk reads before its next rule call and keeps none of
-      hazardRecords: hazardRecords(),
+      ruleRecords: ruleRecords(),
     };
   }
 

@@ -2,7 +2,7 @@
 import { featureWidth } from "../graph/shape.js";
 import type { GraphLayer, GraphWeight } from "../graph/types.js";
 import type { InitSpec } from "../spec/types.js";
-import type { Curvature, Factor, Gradient, HazardRecords, InnerGradient, InnerTensor, OpHazard, Signal, Text, WeightGradientMoment } from "./types.js";
+import type { BackwardResult, Curvature, Factor, ForwardResult, Gradient, InnerGradient, InnerTensor, OpHazard, RuleRecords, Signal, Text, WeightGradientMoment } from "./types.js";
 
 /** Sources cited by more than one rule. */
 export const SOURCES = {
@@ -442,16 +442,23 @@ export function backwardSumHazard(details: boolean, products: Gradient, terms: n
 }
 
 /**
- * New hazard records for OpContext.hazardRecords, in the key order of the records the functions above make (a
+ * New hazard records for OpContext.ruleRecords, in the key order of the records the functions above make (a
  * forward accumulation as linearForward's, weightSumHazard's, backwardSumHazard's, linearBackward's moments), each one
  * written whole on every use.
  */
-export function hazardRecords(): HazardRecords {
+export function ruleRecords(): RuleRecords {
   const signal = hazardInput({ q: 0, mean: 0, zeroFraction: 0, shape: "gaussian", logVar: 0, gaussian: true }, 0, "gaussian");
   // the moments' key order as linearBackward's literals (the bias has no alignedQ)
   const weight: WeightGradientMoment = { weight: "weight", q: 0, alignedQ: 0, betweenQ: 0, coherentQ: 0, terms: 0, zeroFraction: 0, logVar: 0, rule: "" };
   const bias: WeightGradientMoment = { weight: "bias", q: 0, betweenQ: 0, coherentQ: 0, terms: 0, zeroFraction: 0, logVar: 0, rule: "" };
+  // the results' key order as the rules' literals (a pointwise backward result has no hazards)
+  const forward: ForwardResult = { output: signal, factors: NO_FACTORS, role: "activation", inner: NO_INNER, hazards: NO_HAZARDS, stash: undefined };
+  const linearBackward: BackwardResult = { input: undefined, factors: NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS, hazards: NO_HAZARDS };
+  const pointwiseBackward: BackwardResult = { input: undefined, factors: NO_FACTORS, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   return {
+    forward,
+    linearBackward,
+    pointwiseBackward,
     weight,
     bias,
     weightOnly: [weight],
@@ -464,11 +471,23 @@ export function hazardRecords(): HazardRecords {
   };
 }
 
+/** A rule's forward result written into the records (see OpContext.ruleRecords). */
+export function forwardInto<S>(records: RuleRecords, output: Signal, factors: readonly Factor[], role: ForwardResult["role"], inner: InnerTensor[], hazards: OpHazard[], stash: S): ForwardResult<S> {
+  const result = records.forward as ForwardResult<S>;
+  result.output = output;
+  result.factors = factors;
+  result.role = role;
+  result.inner = inner;
+  result.hazards = hazards;
+  result.stash = stash;
+  return result;
+}
+
 /**
  * linearForward's accumulation hazard written into the records (the same numbers as a new one): the products w·x of a
  * signal `input` whose second moment becomes `q` (hazardInput's fields), summed over `terms` per output element.
  */
-export function accumulationInto(records: HazardRecords, input: Signal, q: number, inputElements: number, output: Signal, outputElements: number, terms: number, detail: Text): OpHazard[] {
+export function accumulationInto(records: RuleRecords, input: Signal, q: number, inputElements: number, output: Signal, outputElements: number, terms: number, detail: Text): OpHazard[] {
   const list = records.accumulation;
   const h = list[0] as OpHazard;
   const m = h.input as Signal;
@@ -497,7 +516,7 @@ export function accumulationInto(records: HazardRecords, input: Signal, q: numbe
  * the weight gradient's products x·δ over `terms`, then δ_in = Wᵀ·δ over the weight's fan-out into `made`.
  */
 export function linearSumsInto(
-  records: HazardRecords,
+  records: RuleRecords,
   details: boolean,
   weight: GraphWeight,
   x: Signal | Gradient,

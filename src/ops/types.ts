@@ -384,20 +384,25 @@ export interface OpContext {
    * hazards (and their inputs) before it calls the next rule and keeps none of them (src/magnitude/predict.ts); absent:
    * every hazard is a new object, as a caller that keeps a rule's results needs
    */
-  hazardRecords?: HazardRecords;
+  ruleRecords?: RuleRecords;
 }
 
 /**
- * See OpContext.hazardRecords: one forward accumulation, a backward weight sum and transposed sum, and the dense and
- * convolution rules' weight and bias gradient moments with their two lists ([weight], [weight, bias])
+ * See OpContext.ruleRecords: one forward accumulation, a backward weight sum and transposed sum, the dense and
+ * convolution rules' weight and bias gradient moments with their two lists ([weight], [weight, bias]), and the rules'
+ * result objects
  */
-export interface HazardRecords {
+export interface RuleRecords {
   readonly accumulation: OpHazard[];
   readonly sums: OpHazard[];
   readonly weight: WeightGradientMoment;
   readonly bias: WeightGradientMoment;
   readonly weightOnly: WeightGradientMoment[];
   readonly weightAndBias: WeightGradientMoment[];
+  /** the dense, convolution and pointwise rules' results (forwardInto), a linear and a pointwise backward result */
+  readonly forward: ForwardResult;
+  readonly linearBackward: BackwardResult;
+  readonly pointwiseBackward: BackwardResult;
 }
 
 /** A tensor inside a layer besides its output (attention logits, the gated product...). */

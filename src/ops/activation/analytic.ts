@@ -12,7 +12,7 @@ import { activationFunction, activationMoments, transientMoments } from "../../n
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, forwardInto, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardUnitKappa, forwardUnitKappa } from "../unit-pairs.js";
 import { backwardKappa, forwardKappa } from "./moments.js";
@@ -794,6 +794,8 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       const ratio = forwardRatio(input, output);
       factors = [factor(ratio, forwardRuleOf(spec.activation, input, ratio), SOURCE)];
     }
+    const records = ctx.ruleRecords;
+    if (records !== undefined) return forwardInto(records, output, factors, "activation", NO_INNER, NO_HAZARDS, stash);
     return { output, factors, role: "activation", inner: NO_INNER, hazards: NO_HAZARDS, stash };
   },
   backward(ctx: OpContext, layer: GraphLayer, stash: ActivationStash, output: Gradient): BackwardResult {
@@ -826,6 +828,15 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       // for a rectifier (Stein's lemma), a part the same in every sample that the pairs of input and gradient miss. Not
       // where the loss's curvature is carried: the sum also holds its part there, which the layer below adds as its own
       gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output) + eulerShare(output, layer);
+    }
+    const records = ctx.ruleRecords;
+    if (records !== undefined) {
+      const result = records.pointwiseBackward;
+      result.input = gradient;
+      result.factors = factors;
+      result.inner = NO_INNER_GRADIENTS;
+      result.weightGradients = NO_WEIGHT_GRADIENTS;
+      return result;
     }
     return { input: gradient, factors, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },

@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, accumulationInto, betweenBatches, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, linearSumsInto, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, accumulationInto, betweenBatches, forwardInto, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, linearSumsInto, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -56,16 +56,18 @@ export function linearForward(ctx: OpContext, layer: GraphLayer, input: Signal, 
   }
   const ratio = input.q > 0 ? q / input.q : 0;
   const perSample = layer.output.layout === "image" ? layer.output.channels * layer.output.height * layer.output.width : outWidth * positionCount(layer.output);
-  const records = ctx.hazardRecords;
+  const records = ctx.ruleRecords;
+  const factors = ctx.ledger ? [factor(ratio, linearForwardRule(kind, gain, biasVariance), SOURCES.lengthMap)] : NO_FACTORS;
+  if (records !== undefined) {
+    const hazards = accumulationInto(records, input, input.q * variance, ctx.batch * perSample * w.fanIn, output, ctx.batch * perSample, w.fanIn, ctx.details ? accumulationDetail(kind, w.fanIn) : "");
+    return forwardInto(records, output, factors, "pre-activation", NO_INNER, hazards, { input, output });
+  }
   return {
     output,
-    factors: ctx.ledger ? [factor(ratio, linearForwardRule(kind, gain, biasVariance), SOURCES.lengthMap)] : NO_FACTORS,
+    factors,
     role: "pre-activation",
     inner: NO_INNER,
-    hazards:
-      records !== undefined
-        ? accumulationInto(records, input, input.q * variance, ctx.batch * perSample * w.fanIn, output, ctx.batch * perSample, w.fanIn, ctx.details ? accumulationDetail(kind, w.fanIn) : "")
-        : [
+    hazards: [
             {
               kind: "accumulation",
               input: hazardInput(input, input.q * variance, "gaussian"),
@@ -274,7 +276,7 @@ export function linearBackward(
     const fanIn = weightOf(layer, "weight").fanIn;
     weightSum = weightSum * (1 - 1 / fanIn) + output.homogeneousSum / (fanIn * fanIn * variance);
   }
-  const records = ctx.hazardRecords;
+  const records = ctx.ruleRecords;
   let weightMoment: WeightGradientMoment;
   const weightQ = weightSum + aligned;
   const weightBetween = betweenBatches(ctx.batch, positions, xq, xSample * dSample, xCross * dCross);
@@ -283,7 +285,7 @@ export function linearBackward(
   const weightLogVar = x.logVar + sumLogVarOf(output, weightSum, terms * x.q * output.q, weightOf(layer, "weight").elements);
   const weightRule = ctx.ledger ? weightSumRule(terms) : "";
   if (records !== undefined) {
-    // the walk's record (OpContext.hazardRecords), every field written
+    // the walk's record (OpContext.ruleRecords), every field written
     weightMoment = records.weight;
     weightMoment.q = weightQ;
     weightMoment.alignedQ = aligned;
@@ -365,13 +367,17 @@ export function linearBackward(
     records !== undefined
       ? linearSumsInto(records, ctx.details, w, x, output, terms, variance, input, ctx.batch * sampleElements(layer.input), what)
       : [weightSumHazard(ctx.details, w, "weight-gradient", x, output, terms), transposedHazard(ctx.details, variance, output, w.fanOut, input, ctx.batch * sampleElements(layer.input), "input", what)];
-  return {
-    input,
-    factors: ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS,
-    inner: NO_INNER_GRADIENTS,
-    weightGradients,
-    hazards,
-  };
+  const factors = ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS;
+  if (records !== undefined) {
+    const result = records.linearBackward;
+    result.input = input;
+    result.factors = factors;
+    result.inner = NO_INNER_GRADIENTS;
+    result.weightGradients = weightGradients;
+    result.hazards = hazards;
+    return result;
+  }
+  return { input, factors, inner: NO_INNER_GRADIENTS, weightGradients, hazards };
 }
 
 /** linearBackward's pair correlations of input and gradient (pairCorrelationsInto) */
