@@ -277,31 +277,6 @@ function infiniteVarianceLimit(name: "gelu" | "silu" | "tanh" | "sigmoid" | "sof
   }
 }
 
-/** ReLU's moments at q ≥ 0 (√q given) written into `out`: computeMoments's and transientMoments's one rule. */
-function reluMomentsInto(q: number, sq: number, out: { -readonly [K in keyof ActivationMoments]: ActivationMoments[K] }): ActivationMoments {
-  // half-normal moments: E[x·1(x>0)] = √(q/2π), E[x²·1] = q/2, E[x⁴·1] = 3q²/2; φ' = 1(x>0)
-  out.mean = sq * INV_SQRT_2PI;
-  out.second = q / 2;
-  out.fourth = 1.5 * q * q;
-  out.derivativeMean = 0.5;
-  out.derivativeSecond = 0.5;
-  out.derivativeFourth = 0.5;
-  out.zeroFraction = q === 0 ? 1 : 0.5;
-  return out;
-}
-
-/**
- * {@link activationMoments} for a caller that reads the moments before it asks for any others and keeps none of them
- * (the pointwise forward rule, on every activation layer of both passes): ReLU's are written into one object reused
- * from call to call, the others are activationMoments' own. The same numbers.
- */
-export function transientMoments(name: ActivationName, q: number, slope: number = DEFAULT_LEAKY_SLOPE): ActivationMoments {
-  if (name !== "relu" || !(q >= 0)) return activationMoments(name, q, slope);
-  return reluMomentsInto(q, Math.sqrt(q), TRANSIENT_MOMENTS);
-}
-// (non-integer numbers from the start, so V8 keeps each field as a double from the first write)
-const TRANSIENT_MOMENTS: { -readonly [K in keyof ActivationMoments]: ActivationMoments[K] } = { mean: 0.5, second: 0.5, fourth: 0.5, derivativeMean: 0.5, derivativeSecond: 0.5, derivativeFourth: 0.5, zeroFraction: 0.5 };
-
 function computeMoments(name: ElementwiseActivationName, q: number, slope: number): ActivationMoments {
   if (!(q >= 0)) {
     return { mean: NaN, second: NaN, fourth: NaN, derivativeMean: NaN, derivativeSecond: NaN, derivativeFourth: NaN, zeroFraction: NaN };
@@ -309,7 +284,16 @@ function computeMoments(name: ElementwiseActivationName, q: number, slope: numbe
   const sq = Math.sqrt(q);
   switch (name) {
     case "relu":
-      return reluMomentsInto(q, sq, { mean: 0, second: 0, fourth: 0, derivativeMean: 0, derivativeSecond: 0, derivativeFourth: 0, zeroFraction: 0 });
+      // half-normal moments: E[x·1(x>0)] = √(q/2π), E[x²·1] = q/2, E[x⁴·1] = 3q²/2; φ' = 1(x>0)
+      return {
+        mean: sq * INV_SQRT_2PI,
+        second: q / 2,
+        fourth: 1.5 * q * q,
+        derivativeMean: 0.5,
+        derivativeSecond: 0.5,
+        derivativeFourth: 0.5,
+        zeroFraction: q === 0 ? 1 : 0.5,
+      };
     case "leaky-relu": {
       // SCIENCE.md §2.9 leaky forms: E[φ] = (1−a)√(q/2π), E[φ²] = q(1+a²)/2, E[φ'²] = (1+a²)/2; the
       // fourth moments follow the same way from E[x⁴·1(x>0)] = 3q²/2

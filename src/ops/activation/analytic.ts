@@ -8,14 +8,14 @@ import { featureWidth, positionCount, sampleElements } from "../../graph/shape.j
 import type { GraphLayer } from "../../graph/types.js";
 import type { ActivationLayer, ActivationName } from "../../spec/types.js";
 import { gaussLegendre, gaussianExpectationSplit } from "../../numeric/quadrature.js";
-import { activationFunction, activationMoments, transientMoments } from "../../numeric/activations.js";
+import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
 import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, forwardInto, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardUnitKappa, forwardUnitKappa } from "../unit-pairs.js";
-import { backwardKappa, forwardKappa } from "./moments.js";
+import { activationMoments, backwardKappa, forwardKappa, transientMoments } from "./moments.js";
 
 /** What the activation backward rule needs. */
 export interface ActivationStash {
