@@ -12,7 +12,7 @@
 import { Session } from "node:inspector/promises";
 import { constants, PerformanceObserver } from "node:perf_hooks";
 import { fileURLToPath } from "node:url";
-import { child, loadBuild, options } from "./measure.mjs";
+import { alternating, child, loadBuild, options } from "./measure.mjs";
 import { mlpSpec } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
@@ -76,15 +76,10 @@ if (argv[0] === "--allocation" || argv[0] === "--collections") {
     console.error("usage: node bench/compare/check-memory.mjs BASE_DIST NEW_DIST [--rounds 4] [--calls 30] [--growth 1.1]");
     process.exit(2);
   }
-  const runs = { base: [], new: [] };
-  for (let r = 0; r < o.rounds; r++) {
-    const order = r % 2 === 0 ? ["base", "new"] : ["new", "base"];
-    for (const which of order) {
-      const dist = which === "base" ? positional[0] : positional[1];
-      const args = [dist, String(o.calls), String(o.growth), String(r)];
-      runs[which].push({ ...child(self, ["--allocation", ...args]), ...child(self, ["--collections", ...args]) });
-    }
-  }
+  const runs = alternating(o.rounds, positional, (dist, r) => {
+    const args = [dist, String(o.calls), String(o.growth), String(r)];
+    return { ...child(self, ["--allocation", ...args]), ...child(self, ["--collections", ...args]) };
+  });
   const mean = (xs, key) => xs.reduce((a, b) => a + b[key], 0) / xs.length;
   const show = (xs, key, digits) => xs.map((x) => x[key].toFixed(digits)).join(" / ");
   console.log(`1,000-layer check, weight growth ${o.growth}, per fresh check (${o.calls} per round, ${o.rounds} rounds):`);

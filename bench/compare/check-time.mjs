@@ -9,7 +9,7 @@
  * ±20–30% from minute to minute: read the ratio over many rounds, not one round's figures.
  */
 import { fileURLToPath } from "node:url";
-import { child, loadBuild, options, threadMs } from "./measure.mjs";
+import { alternating, child, loadBuild, options, threadMs } from "./measure.mjs";
 import { mlpSpec } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
@@ -33,15 +33,7 @@ if (argv[0] === "--round") {
     console.error("usage: node bench/compare/check-time.mjs BASE_DIST NEW_DIST [--rounds 8] [--calls 15] [--growth 1.1]");
     process.exit(2);
   }
-  const runs = { base: [], new: [] };
-  for (let r = 0; r < o.rounds; r++) {
-    // alternate which build goes first, so neither always meets the machine's later minute
-    const order = r % 2 === 0 ? ["base", "new"] : ["new", "base"];
-    for (const which of order) {
-      const dist = which === "base" ? positional[0] : positional[1];
-      runs[which].push(child(self, ["--round", dist, String(o.calls), String(o.growth), String(r)]).ms);
-    }
-  }
+  const runs = alternating(o.rounds, positional, (dist, r) => child(self, ["--round", dist, String(o.calls), String(o.growth), String(r)]).ms);
   const sum = (xs) => xs.reduce((a, b) => a + b, 0);
   console.log(`1,000-layer check, weight growth ${o.growth}, ms of processor time per fresh check (${o.calls} per round):`);
   console.log(`  base ${runs.base.map((x) => x.toFixed(1)).join(" / ")}`);

@@ -8,7 +8,7 @@
 import { readdirSync, readFileSync } from "node:fs";
 import { dirname, join, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
-import { child, loadBuild, options, threadMs } from "./measure.mjs";
+import { alternating, child, loadBuild, options, threadMs } from "./measure.mjs";
 
 const self = fileURLToPath(import.meta.url);
 const argv = process.argv.slice(2);
@@ -32,12 +32,7 @@ if (argv[0] === "--round") {
     process.exit(2);
   }
   const specsDir = join(dirname(resolve(positional[0])), "specs");
-  const runs = { base: [], new: [] };
-  for (let r = 0; r < o.rounds; r++) {
-    for (const which of r % 2 === 0 ? ["base", "new"] : ["new", "base"]) {
-      runs[which].push(child(self, ["--round", which === "base" ? positional[0] : positional[1], String(o.calls), specsDir]));
-    }
-  }
+  const runs = alternating(o.rounds, positional, (dist) => child(self, ["--round", dist, String(o.calls), specsDir]));
   console.log(`examples, ms of processor time per check (${o.calls} repeated calls per round), base -> new:`);
   for (const name of Object.keys(runs.base[0])) {
     const a = runs.base.map((r) => r[name]);

@@ -41,3 +41,15 @@ export function options(argv, defaults) {
   }
   return { positional, options: out };
 }
+
+/**
+ * Runs `round(dist, which, r)` for both builds in each of `rounds` rounds, the order swapped every other round so that
+ * neither build always meets the machine's later minute; returns each build's list of what the rounds gave.
+ */
+export function alternating(rounds, [baseDist, newDist], round) {
+  const runs = { base: [], new: [] };
+  for (let r = 0; r < rounds; r++) {
+    for (const which of r % 2 === 0 ? ["base", "new"] : ["new", "base"]) runs[which].push(round(which === "base" ? baseDist : newDist, r));
+  }
+  return runs;
+}
