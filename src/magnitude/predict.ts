@@ -231,7 +231,8 @@ class Phase {
       // others skip the look-up (w.variance · 1 is w.variance itself)
       variance: phase === "end" ? (w) => (w.distribution === "zeros" ? (this.endVariance.get(w) ?? w.variance * growth2) : w.variance * growth2) : (w) => w.variance,
       moments: activationMoments,
-      // the dense and convolution rules' hazards, which this walk reads before its next rule call and keeps none of
+      // records the rules fill in place of new results, hazards and moments: this walk reads each rule's before its next
+      // rule call and keeps none of them
       ruleRecords: ruleRecords(),
     };
   }

@@ -380,9 +380,10 @@ export interface OpContext {
   /** memoised Gaussian expectations of an activation at input variance q */
   moments(name: ActivationName, q: number, slope: number): ActivationMoments;
   /**
-   * hazard records the dense and convolution rules fill in place of new ones, for a caller that reads each rule's
-   * hazards (and their inputs) before it calls the next rule and keeps none of them (src/magnitude/predict.ts); absent:
-   * every hazard is a new object, as a caller that keeps a rule's results needs
+   * records the dense, convolution and pointwise rules fill in place of new result, hazard and moments objects, for a
+   * caller that reads each rule's result (its hazards and their inputs, its weight gradients) before it calls the next
+   * rule and keeps none of them (src/magnitude/predict.ts); absent: every one is a new object, as a caller that keeps a
+   * rule's results needs
    */
   ruleRecords?: RuleRecords;
 }

@@ -780,7 +780,7 @@ function judgeTensor(
       }
       if (findings !== null) {
         riskVerdict = worstVerdict(findings);
-        CheckedTensor.addDecided(checked, judged, riskVerdict, findings, setting.limits, options, startOverflow, endOverflow);
+        CheckedTensor.addDecided(checked, findings, setting.limits, options, startOverflow, endOverflow);
         found = findings;
       } else {
         const risk = scaledTensorRisk(tensor, (scaled ??= CheckedTensor.scaled(checked)), setting.limits, options);

@@ -130,20 +130,11 @@ export class CheckedTensor implements TensorCheck {
 
   /**
    * Adds a risk whose findings were decided without its numbers (its `start`, `end` and `worst` worked out when first
-   * read; {@link CheckedRisk}'s arguments).
+   * read; {@link CheckedRisk}'s arguments). Its `judged` is its options' and its verdict its findings' worst, as the judge
+   * decides them (judge.ts judgeTensor), so neither is kept.
    */
-  static addDecided(
-    tensor: CheckedTensor,
-    judged: boolean,
-    verdict: Verdict,
-    findings: Finding[],
-    limits: RangeLimits,
-    options: TensorRiskOptions,
-    startOverflow: number,
-    endOverflow: number,
-  ): void {
+  static addDecided(tensor: CheckedTensor, findings: Finding[], limits: RangeLimits, options: TensorRiskOptions, startOverflow: number, endOverflow: number): void {
     if (tensor.#ready === null && tensor.#options === null) {
-      // `judged` is options.judged and `verdict` the findings' worst (judge.ts judgeTensor): read from them again
       tensor.#findings = findings;
       tensor.#limits = limits;
       tensor.#options = options;
@@ -151,7 +142,7 @@ export class CheckedTensor implements TensorCheck {
       tensor.#endOverflow = endOverflow;
       return;
     }
-    (tensor.#more ??= []).push({ ready: null, judged, verdict, findings, limits, options, startOverflow, endOverflow });
+    (tensor.#more ??= []).push({ ready: null, findings, limits, options, startOverflow, endOverflow });
   }
 
   /** Adds a risk judged from its numbers, as it is. */
@@ -160,7 +151,7 @@ export class CheckedTensor implements TensorCheck {
       tensor.#ready = risk;
       return;
     }
-    (tensor.#more ??= []).push({ ready: risk, judged: false, verdict: "fits", findings: NO_FINDINGS, limits: null, options: null, startOverflow: -1, endOverflow: -1 });
+    (tensor.#more ??= []).push({ ready: risk, findings: NO_FINDINGS, limits: null, options: null, startOverflow: -1, endOverflow: -1 });
   }
 
   /** The findings of the tensor's first risk in `format` (none when no risk is in it), without making the risks. */
@@ -193,23 +184,14 @@ export class CheckedTensor implements TensorCheck {
     else {
       const first =
         tensor.#ready ??
-        new CheckedRisk(
-          (options as TensorRiskOptions).judged,
-          worstVerdict(tensor.#findings),
-          ownFindings(tensor.#findings),
-          tensor,
-          tensor.#limits as RangeLimits,
-          options as TensorRiskOptions,
-          tensor.#startOverflow,
-          tensor.#endOverflow,
-        );
+        decidedRisk(tensor, tensor.#findings, tensor.#limits as RangeLimits, options as TensorRiskOptions, tensor.#startOverflow, tensor.#endOverflow);
       // most tensors are held in one format: a literal of one is the smallest array
       risks = [first];
       if (more !== null) {
       for (let i = 0; i < more.length; i++) {
         const added = more[i] as AddedRisk;
           risks.push(
-            added.ready ?? new CheckedRisk(added.judged, added.verdict, ownFindings(added.findings), tensor, added.limits as RangeLimits, added.options as TensorRiskOptions, added.startOverflow, added.endOverflow),
+            added.ready ?? decidedRisk(tensor, added.findings, added.limits as RangeLimits, added.options as TensorRiskOptions, added.startOverflow, added.endOverflow),
           );
         }
       }
@@ -247,11 +229,14 @@ function setupOf(lossScale: number, thresholds: RiskThresholds): Setup {
 const STATISTICS = lazyField<CheckedTensor>("statistics", (tensor) => CheckedTensor.scaled(tensor).statistics);
 const RISKS = lazyField<CheckedTensor>("risks", (tensor) => CheckedTensor.risks(tensor));
 
+// a decided risk's object (see CheckedTensor.addDecided)
+function decidedRisk(tensor: CheckedTensor, findings: Finding[], limits: RangeLimits, options: TensorRiskOptions, startOverflow: number, endOverflow: number): CheckedRisk {
+  return new CheckedRisk(options.judged, worstVerdict(findings), ownFindings(findings), tensor, limits, options, startOverflow, endOverflow);
+}
+
 /** A risk added after a tensor's first ({@link CheckedTensor.addDecided}, {@link CheckedTensor.addJudged}). */
 interface AddedRisk {
   ready: TensorCheckRisk | null;
-  judged: boolean;
-  verdict: Verdict;
   findings: Finding[];
   limits: RangeLimits | null;
   options: TensorRiskOptions | null;
