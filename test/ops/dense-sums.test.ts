@@ -13,6 +13,7 @@ import { gradientBetween, gradientSum } from "../../src/ops/common.js";
 import { linearBackward } from "../../src/ops/dense/analytic.js";
 import type { Gradient, OpContext, Signal } from "../../src/ops/types.js";
 import { dense, features, he, makeSpec } from "../magnitude/build-spec.js";
+import { correlation, moment } from "../helpers/rule-arbitraries.js";
 
 function denseLayer(positions: number): GraphLayer {
   const built = buildGraph(makeSpec([dense("d", 8, he, true)], { input: features(16, positions) }));
@@ -20,9 +21,6 @@ function denseLayer(positions: number): GraphLayer {
   return built.graph.layers[0]!;
 }
 
-// correlations on a grid from −1.25 to 1.25 (past ±1 they are clamped), or absent (each reader's default)
-const correlation = fc.oneof(fc.constant(undefined), fc.integer({ min: -100, max: 100 }).map((k) => k / 80));
-const moment = fc.integer({ min: -20, max: 10 }).map((k) => 2 ** k * 1.375);
 
 describe("the dense rule's weight and bias sums", () => {
   it("are gradientSum's and gradientBetween's numbers, bit for bit", () => {

@@ -17,6 +17,7 @@ import { crossCorrelationOf, pairCorrelationsInto, positionCorrelationOf, ruleRe
 import { denseRule } from "../../src/ops/dense/analytic.js";
 import type { Gradient, OpContext, Signal } from "../../src/ops/types.js";
 import { act, dense, features, he, makeSpec } from "../magnitude/build-spec.js";
+import { correlation, moment } from "../helpers/rule-arbitraries.js";
 
 function layers(positions: number): GraphLayer[] {
   const built = buildGraph(makeSpec([dense("d", 8, he, true), act("a", "relu")], { input: features(16, positions) }));
@@ -24,9 +25,6 @@ function layers(positions: number): GraphLayer[] {
   return built.graph.layers;
 }
 
-// correlations on a grid from −1.25 to 1.25 (past ±1 they are clamped), or absent (each reader's default)
-const correlation = fc.oneof(fc.constant(undefined), fc.integer({ min: -100, max: 100 }).map((k) => k / 80));
-const moment = fc.integer({ min: -20, max: 10 }).map((k) => 2 ** k * 1.375);
 
 /** A rule's result as plain data: its hazards' and moments' numbers, read before the next call writes the records. */
 function plain(value: unknown): unknown {
