@@ -132,21 +132,27 @@ function nextDraft(list: DraftList): Draft {
   return draft;
 }
 
-// The numbers of the evaluation putGraded adds, written by its caller: the value, the at-risk and failing thresholds and
-// the sentence's extra number (Draft.extra). A double passed to a call the compiler does not inline is boxed, four
-// heap numbers per evaluation (~14,000 a 1,000-layer check, ~37,000 where its loss-scale pick is weighed); written
-// here they cross the call unboxed.
+// The numbers of the evaluation putGraded adds, written by its caller through grade(): the value, the at-risk and
+// failing thresholds, the sentence's extra number (Draft.extra) and the critical level (NaN: none). A double passed to a
+// call the compiler does not inline (putGraded) is boxed, four heap numbers per evaluation (~14,000 a 1,000-layer check,
+// ~37,000 where its loss-scale pick is weighed); written here by a call small enough to be inlined, they cross unboxed.
 const GRADE = new Float64Array(5);
 const VALUE = 0;
 const AT_RISK = 1;
 const FAILS = 2;
 const EXTRA = 3;
-// the critical level, where the caller passes hasCritical
 const CRITICAL = 4;
+function grade(value: number, atRisk: number, fails: number, extra: number, critical: number): void {
+  GRADE[VALUE] = value;
+  GRADE[AT_RISK] = atRisk;
+  GRADE[FAILS] = fails;
+  GRADE[EXTRA] = extra;
+  GRADE[CRITICAL] = critical;
+}
 
 /**
- * Add an evaluation graded against thresholds (GRADE: its value, at-risk and failing thresholds and extra number):
- * above `fails` it fails, above `atRisk` it is at risk (NaN fits); `capAtRisk`: the severity cannot exceed at-risk (e.g.
+ * Add an evaluation graded against thresholds, its numbers in GRADE (see grade()): above `fails` it fails, above
+ * `atRisk` it is at risk (NaN fits); `capAtRisk`: the severity cannot exceed at-risk (e.g.
  * only an implementation that does not widen would overflow); a finding capped so carries the at-risk threshold, the
  * one of the severity it has, even when its value passes `fails`.
  */
@@ -156,7 +162,6 @@ function putGraded(
   heldIn: HeldIn,
   measure: Measure,
   kind: FindingKind,
-  hasCritical: boolean,
   capAtRisk: boolean,
   wording: number,
   notWidened: boolean,
@@ -179,8 +184,9 @@ function putGraded(
   draft.heldIn = heldIn;
   draft.measure = measure;
   draft.value = value;
-  draft.critical = GRADE[CRITICAL] as number;
-  draft.hasCritical = hasCritical;
+  const critical = GRADE[CRITICAL] as number;
+  draft.critical = critical;
+  draft.hasCritical = critical === critical;
   draft.kind = kind;
   draft.verdict = verdict;
   draft.threshold = threshold;
@@ -809,23 +815,15 @@ function softmaxExp(site: HazardSite, input: MagnitudeProfile, context: HazardCo
       const held = k === 0 ? context.activations : context.accumulate;
       const scaled = FORMATS[held.format].bits === 8 && (context.scaling ?? "none") !== "none";
       const value = !scaled && site.terms >= held.overflowLevel ? 1 : 0;
-      GRADE[VALUE] = value;
-      GRADE[AT_RISK] = t.overflowAtRisk;
-      GRADE[FAILS] = t.overflowFails;
-      GRADE[EXTRA] = scaled ? 1 : 0;
-      GRADE[CRITICAL] = held.overflowLevel;
-      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", true, k === 0, SOFTMAX_GUARDED, k === 0);
+      grade(value, t.overflowAtRisk, t.overflowFails, scaled ? 1 : 0, held.overflowLevel);
+      putGraded(list, held, k === 0 ? "activations" : "accumulate", "overflow-risk", "softmax-sum-overflow", k === 0, SOFTMAX_GUARDED, k === 0);
     }
     return;
   }
   const critical = Math.log(limits.overflowLevel);
   const value = probabilityAnyAbove(input, critical, true);
-  GRADE[VALUE] = value;
-  GRADE[AT_RISK] = t.overflowAtRisk;
-  GRADE[FAILS] = t.overflowFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = critical;
-  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", true, false, SOFTMAX_EXP, false);
+  grade(value, t.overflowAtRisk, t.overflowFails, 0, critical);
+  putGraded(list, limits, "activations", "overflow-risk", "softmax-exp-overflow", false, SOFTMAX_EXP, false);
 }
 
 // A row's sum of squares S = Σ x_i² over N features has mean N·r² and variance N·(κ − 1)·r⁴ (κ the element
@@ -866,12 +864,8 @@ function normSumOfSquares(site: HazardSite, profile: MagnitudeProfile, context: 
     const criticalRms = Math.sqrt(level / features);
     const value = anyAbove(level);
     const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
-    GRADE[VALUE] = value;
-    GRADE[AT_RISK] = atRisk;
-    GRADE[FAILS] = t.overflowFails;
-    GRADE[EXTRA] = profile.rms;
-    GRADE[CRITICAL] = criticalRms;
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", true, k === 0, NORM_SUM, k === 0);
+    grade(value, atRisk, t.overflowFails, profile.rms, criticalRms);
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "norm-sum-overflow", k === 0, NORM_SUM, k === 0);
   }
 }
 
@@ -922,18 +916,10 @@ function accumulation(site: HazardSite, profile: MagnitudeProfile, context: Haza
   const level = limits.overflowLevel;
   const coherent = elementLaw(profile).positiveShare === 1;
   const overflow = partialSumsOverflow(profile, terms, level, coherent);
-  GRADE[VALUE] = error;
-  GRADE[AT_RISK] = t.accumulationAtRisk;
-  GRADE[FAILS] = t.accumulationFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = Number.NaN;
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, false, ACCUMULATION_ERROR, false);
-  GRADE[VALUE] = overflow;
-  GRADE[AT_RISK] = t.overflowAtRisk;
-  GRADE[FAILS] = t.overflowFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = coherent ? level / terms : level / Math.sqrt(terms);
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, ACCUMULATION_OVERFLOW, false);
+  grade(error, t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, ACCUMULATION_ERROR, false);
+  grade(overflow, t.overflowAtRisk, t.overflowFails, 0, coherent ? level / terms : level / Math.sqrt(terms));
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", false, ACCUMULATION_OVERFLOW, false);
 }
 
 // P(some partial sum of `terms` terms of `profile` reaches `level` in a step), `coherent` when the terms share one sign
@@ -995,25 +981,13 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
     if (scaled === null) scaled = scaledIn(TERMS_SCALED, input, lossScale);
     lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
   }
-  GRADE[VALUE] = sumRoundingError(terms, limits.unitRoundoff);
-  GRADE[AT_RISK] = t.accumulationAtRisk;
-  GRADE[FAILS] = t.accumulationFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = Number.NaN;
-  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, false, GRADIENT_ACCUMULATION_ERROR, false);
-  GRADE[VALUE] = overflow;
-  GRADE[AT_RISK] = t.overflowAtRisk;
-  GRADE[FAILS] = t.overflowFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = level / Math.sqrt(terms) / lossScale;
-  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, GRADIENT_ACCUMULATION_OVERFLOW, false);
+  grade(sumRoundingError(terms, limits.unitRoundoff), t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+  putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, GRADIENT_ACCUMULATION_ERROR, false);
+  grade(overflow, t.overflowAtRisk, t.overflowFails, 0, level / Math.sqrt(terms) / lossScale);
+  putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", false, GRADIENT_ACCUMULATION_OVERFLOW, false);
   // the terms' rms at the loss scale, as scaledIn makes it
-  GRADE[VALUE] = lost;
-  GRADE[AT_RISK] = t.energyAtRisk;
-  GRADE[FAILS] = t.energyFails;
-  GRADE[EXTRA] = lossScale === 1 ? input.rms : input.rms * lossScale;
-  GRADE[CRITICAL] = flushBound / lossScale;
-  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", true, false, GRADIENT_ACCUMULATION_FLUSH, false);
+  grade(lost, t.energyAtRisk, t.energyFails, lossScale === 1 ? input.rms : input.rms * lossScale, flushBound / lossScale);
+  putGraded(list, limits, "accumulate", "flushed-energy", "gradient-energy-flushed", false, GRADIENT_ACCUMULATION_FLUSH, false);
 }
 
 // Whether the partial sums' tail is 0 exactly at every draw the rule of overDraws evaluates: at its largest draw
@@ -1054,12 +1028,8 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     const value = probabilityAnyAbove(total, level);
     // a saturating per-tensor conversion clips past the scale's own quantile that often: the tensor rule's leeway
     const atRisk = overflowAtRiskThreshold(t, scaling === "tensor" && limits.saturates);
-    GRADE[VALUE] = value;
-    GRADE[AT_RISK] = atRisk;
-    GRADE[FAILS] = t.overflowFails;
-    GRADE[EXTRA] = input.rms;
-    GRADE[CRITICAL] = level / factor;
-    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", true, k === 0, LOSS_VALUE, k === 0);
+    grade(value, atRisk, t.overflowFails, input.rms, level / factor);
+    putGraded(list, limits, k === 0 ? "activations" : "accumulate", "overflow-risk", "loss-value-overflow", k === 0, LOSS_VALUE, k === 0);
     const draft = list.items[list.count - 1] as Draft;
     draft.saturates = limits.saturates;
     if (scaling !== "none") {
@@ -1079,21 +1049,13 @@ function lossValue(site: HazardSite, input: MagnitudeProfile, context: HazardCon
     const level = limits.overflowLevel;
     const settled = settledAnyAbove(sum, level, 1);
     const value = settled === 0 || settled === 1 ? settled : probabilityAnyAbove(sum, level);
-    GRADE[VALUE] = value;
-    GRADE[AT_RISK] = t.overflowAtRisk;
-    GRADE[FAILS] = t.overflowFails;
-    GRADE[EXTRA] = sum.rms;
-    GRADE[CRITICAL] = level / summed;
-    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", true, false, LOSS_PARTIAL_SUM, false);
+    grade(value, t.overflowAtRisk, t.overflowFails, sum.rms, level / summed);
+    putGraded(list, limits, "accumulate", "overflow-risk", "accumulation-overflow", false, LOSS_PARTIAL_SUM, false);
   }
   if (summed > 1) {
     const u = context.accumulate.unitRoundoff;
-    GRADE[VALUE] = Math.max(sumRoundingError(summed, u), stalledShortfall(summed, input.rms, u));
-    GRADE[AT_RISK] = t.accumulationAtRisk;
-    GRADE[FAILS] = t.accumulationFails;
-    GRADE[EXTRA] = summed;
-    GRADE[CRITICAL] = Number.NaN;
-    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", false, false, LOSS_SUM_ERROR, false);
+    grade(Math.max(sumRoundingError(summed, u), stalledShortfall(summed, input.rms, u)), t.accumulationAtRisk, t.accumulationFails, summed, Number.NaN);
+    putGraded(list, context.accumulate, "accumulate", "relative-error", "accumulation-error", false, LOSS_SUM_ERROR, false);
     // the term the sentence compares with the running sum's ulp (the draft's spare number; no tensor is named here)
     (list.items[list.count - 1] as Draft).topValue = input.rms;
   }
@@ -1194,19 +1156,11 @@ function gradientSumSides(
       endOverflow = startOverflow > SETTLED_SIDE && endSettled ? SETTLED_SIDE : overflowBeside(endSummed, endLevel, startOverflow, t.overflowFails);
     }
   }
-  GRADE[VALUE] = startOverflow;
-  GRADE[AT_RISK] = overflowAtRisk;
-  GRADE[FAILS] = t.overflowFails;
-  GRADE[EXTRA] = startSummed.rms;
-  GRADE[CRITICAL] = startLevel / lossScale;
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
+  grade(startOverflow, overflowAtRisk, t.overflowFails, startSummed.rms, startLevel / lossScale);
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   if (end !== null) {
-    GRADE[VALUE] = endOverflow;
-    GRADE[AT_RISK] = overflowAtRisk;
-    GRADE[FAILS] = t.overflowFails;
-    GRADE[EXTRA] = endSummed.rms;
-    GRADE[CRITICAL] = endLevel / lossScale;
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
+    grade(endOverflow, overflowAtRisk, t.overflowFails, endSummed.rms, endLevel / lossScale);
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
@@ -1247,36 +1201,20 @@ function gradientSumSides(
         }
       }
     }
-    GRADE[VALUE] = startLost;
-    GRADE[AT_RISK] = t.energyAtRisk;
-    GRADE[FAILS] = t.energyFails;
-    GRADE[EXTRA] = 0;
-    GRADE[CRITICAL] = startLevelDivided * workers;
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
+    grade(startLost, t.energyAtRisk, t.energyFails, 0, startLevelDivided * workers);
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     if (end !== null) {
-      GRADE[VALUE] = endLost;
-      GRADE[AT_RISK] = t.energyAtRisk;
-      GRADE[FAILS] = t.energyFails;
-      GRADE[EXTRA] = 0;
-      GRADE[CRITICAL] = endLevelDivided * workers;
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
+      grade(endLost, t.energyAtRisk, t.energyFails, 0, endLevelDivided * workers);
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     }
   }
   // The sum's own rounding error, judged as an accumulation is (sumRoundingError), in the sum buffer's format
   const error = sumRoundingError(terms, limits.unitRoundoff);
-  GRADE[VALUE] = error;
-  GRADE[AT_RISK] = t.accumulationAtRisk;
-  GRADE[FAILS] = t.accumulationFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = Number.NaN;
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
+  grade(error, t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, GRADIENT_SUM_ERROR, false);
   if (end !== null) {
-    GRADE[VALUE] = error;
-    GRADE[AT_RISK] = t.accumulationAtRisk;
-    GRADE[FAILS] = t.accumulationFails;
-    GRADE[EXTRA] = 0;
-    GRADE[CRITICAL] = Number.NaN;
-    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
+    grade(error, t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+    putGraded(end, limits, "gradientSums", "relative-error", "accumulation-error", false, GRADIENT_SUM_ERROR, false);
   }
 }
 
@@ -1298,55 +1236,31 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   const startSum = site.output !== undefined ? site.output : site.input;
   // as summedIn scales it: the predicted sum by the loss scale, else one contribution by the loss scale times the terms
   const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
-  GRADE[VALUE] = countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound);
-  GRADE[AT_RISK] = overflowAtRisk;
-  GRADE[FAILS] = t.overflowFails;
-  GRADE[EXTRA] = startFactor === 1 ? startSum.rms : startSum.rms * startFactor;
-  GRADE[CRITICAL] = level / lossScale;
-  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
+  grade(countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), overflowAtRisk, t.overflowFails, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, level / lossScale);
+  putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   if (sides) {
     const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
     const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
     const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
-    GRADE[VALUE] = countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound);
-    GRADE[AT_RISK] = overflowAtRisk;
-    GRADE[FAILS] = t.overflowFails;
-    GRADE[EXTRA] = endFactor === 1 ? endSum.rms : endSum.rms * endFactor;
-    GRADE[CRITICAL] = level / lossScale;
-    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", true, false, GRADIENT_SUM_OVERFLOW, false);
+    grade(countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), overflowAtRisk, t.overflowFails, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, level / lossScale);
+    putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
     const flushBound = Math.min(t.energyAtRisk, t.energyFails) / 2;
-    GRADE[VALUE] = countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound);
-    GRADE[AT_RISK] = t.energyAtRisk;
-    GRADE[FAILS] = t.energyFails;
-    GRADE[EXTRA] = 0;
-    GRADE[CRITICAL] = limits.flushBound * workers;
-    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
+    grade(countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
+    putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     if (sides) {
-      GRADE[VALUE] = countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound);
-      GRADE[AT_RISK] = t.energyAtRisk;
-      GRADE[FAILS] = t.energyFails;
-      GRADE[EXTRA] = 0;
-      GRADE[CRITICAL] = limits.flushBound * workers;
-      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, true, GRADIENT_SUM_FLUSH, false);
+      grade(countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
+      putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     }
   }
   const error = sumRoundingError(terms, limits.unitRoundoff);
-  GRADE[VALUE] = error;
-  GRADE[AT_RISK] = t.accumulationAtRisk;
-  GRADE[FAILS] = t.accumulationFails;
-  GRADE[EXTRA] = 0;
-  GRADE[CRITICAL] = Number.NaN;
-  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
+  grade(error, t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+  putGraded(start, limits, "gradientSums", "relative-error", "accumulation-error", false, GRADIENT_SUM_ERROR, false);
   if (sides) {
-    GRADE[VALUE] = error;
-    GRADE[AT_RISK] = t.accumulationAtRisk;
-    GRADE[FAILS] = t.accumulationFails;
-    GRADE[EXTRA] = 0;
-    GRADE[CRITICAL] = Number.NaN;
-    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", false, false, GRADIENT_SUM_ERROR, false);
+    grade(error, t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
+    putGraded(end as DraftList, limits, "gradientSums", "relative-error", "accumulation-error", false, GRADIENT_SUM_ERROR, false);
   }
 }
 
