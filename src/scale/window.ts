@@ -27,6 +27,11 @@ export interface ScaledTensorCurves {
   /** optional upper bound on flushedEnergy tighter than the bounds', at more cost: asked for before integrating */
   flushedEnergyUpper?(log2Scale: number): number;
   /**
+   * optional: true where flushedEnergyUpper costs no more than the cheap bounds (a closed form) and is far tighter: the
+   * searches then ask it first, and take the cheap bounds only where it does not decide
+   */
+  flushedEnergyUpperFirst?: boolean;
+  /**
    * optional upper bound on overflowRisk between the cheap bounds and overflowRiskUpper in cost and tightness: the
    * edge setter's scan asks for it before overflowRiskUpper (it only asks whether a tensor can reach a value found)
    */
@@ -260,6 +265,8 @@ class WindowSearch {
   private readonly flushShift: number;
   // per tensor its flushedEnergyGrowth (0: none)
   private readonly growth: Float64Array;
+  // per tensor 1 where its flushedEnergyUpper is asked before its cheap flush bounds (flushedEnergyUpperFirst)
+  private readonly upperFirst: Uint8Array;
   // powerBase^d for d < POWERS (NaN until asked), the first growth offered (in practice every tensor's): the bound by the
   // growth is read here instead of raising it anew (Math.pow, ~50 ns) for each tensor and table; the same doubles, each
   // computed once
@@ -313,7 +320,9 @@ class WindowSearch {
     this.overflowKnown = knowledge(this.n);
     this.flushKnown = flushFrom === undefined ? flushKnowledge(this.n) : flushFrom.search.flushKnown;
     this.growth = new Float64Array(this.n);
+    this.upperFirst = new Uint8Array(this.n);
     for (let i = 0; i < this.n; i++) {
+      if ((tensors[i] as ScaledTensorCurves).flushedEnergyUpperFirst === true) this.upperFirst[i] = 1;
       const g = (tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
       if (g !== undefined && g >= 1 && Number.isFinite(g)) {
         this.growth[i] = g;
@@ -510,6 +519,43 @@ class WindowSearch {
     return this.knownAfresh(curve, at, i, here, version);
   }
 
+  // `known` at the table's exponent where only the table's own entry of tensor i changed since it found [lo, hi] (its
+  // bounds, tighter upper bound or value taken there): what knownAfresh would find, without visiting the other tables
+  // again (the same comparisons on the same doubles, which min and max take in any order)
+  private knownWithHere(curve: Curve, i: number, here: Table, lo: number, hi: number): Float64Array {
+    const flags = here.flags[i] as number;
+    if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) !== 0) {
+      let a = -Infinity;
+      let b = Infinity;
+      if ((flags & HAS_VALUE) !== 0) a = b = here.data[4 * i + 3] as number;
+      else {
+        if ((flags & HAS_BOUNDS) !== 0) {
+          a = here.data[4 * i] as number;
+          b = here.data[4 * i + 1] as number;
+        }
+        if ((flags & HAS_UPPER) !== 0) b = Math.min(b, here.data[4 * i + 2] as number);
+      }
+      if (a > lo) lo = a;
+      if (b < hi) hi = b;
+    }
+    return this.keepKnown(i, here, lo, hi, ((curve === "overflow" ? this.overflowKnown : this.flushKnown).versions[i] as number) + 1);
+  }
+
+  // what `known` found of tensor i at the table's exponent, kept with its knowledge's version plus 1, and returned in pair
+  private keepKnown(i: number, here: Table, lo: number, hi: number, version: number): Float64Array {
+    if (here.knownVersion === undefined) {
+      here.knownLo = new Float64Array(this.n);
+      here.knownHi = new Float64Array(this.n);
+      here.knownVersion = new Uint32Array(this.n);
+    }
+    here.knownLo![i] = lo;
+    here.knownHi![i] = hi;
+    here.knownVersion[i] = version;
+    this.pair[0] = lo;
+    this.pair[1] = hi;
+    return this.pair;
+  }
+
   private knownAfresh(curve: Curve, at: number, i: number, here: Table, version: number): Float64Array {
     const rising = curve === "overflow";
     let lo = -Infinity;
@@ -560,17 +606,7 @@ class WindowSearch {
         if (across < hi) hi = across;
       }
     }
-    if (here.knownVersion === undefined) {
-      here.knownLo = new Float64Array(this.n);
-      here.knownHi = new Float64Array(this.n);
-      here.knownVersion = new Uint32Array(this.n);
-    }
-    here.knownLo![i] = lo;
-    here.knownHi![i] = hi;
-    here.knownVersion[i] = version;
-    this.pair[0] = lo;
-    this.pair[1] = hi;
-    return this.pair;
+    return this.keepKnown(i, here, lo, hi, version);
   }
 
   // Whether the union bound at k is within the budget, from bounds where they decide. Each tensor starts from what
@@ -898,8 +934,11 @@ class WindowSearch {
       let known = this.known(curve, k, i, table);
       if (known[1] === Infinity) {
         if (curve === "overflow") this.roughFirst(k, i, table);
-        this.cheapBounds(curve, i, table);
-        known = this.known(curve, k, i, table);
+        // a flushed share whose tighter bound costs no more: that bound alone (the cheap bounds' low raises the floor
+        // little, and the visit below asks the tighter one of most tensors anyway)
+        if (curve === "overflow" || this.upperFirst[i] === 0) this.cheapBounds(curve, i, table);
+        else this.upper(curve, k, i, table);
+        known = this.knownWithHere(curve, i, table, known[0] as number, known[1] as number);
       }
       highs[i] = known[1] as number;
       if ((known[0] as number) > floor) floor = known[0] as number;
@@ -933,8 +972,9 @@ class WindowSearch {
       const i = r < 0 ? seed : (order[r] as number);
       if (active[i] === 0 || (r >= 0 && i === seed)) continue;
       if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
-      if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0) {
-        // bounded from another exponent only: the rougher or the cheap bounds here first
+      if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0 && (curve === "overflow" || this.upperFirst[i] === 0)) {
+        // bounded from another exponent only: the rougher or the cheap bounds here first (a flushed share whose tighter
+        // bound costs no more takes that one below instead)
         if (curve === "overflow") this.roughFirst(k, i, table);
         this.cheapBounds(curve, i, table);
         if ((table.data[4 * i + 1] as number) < (highs[i] as number)) highs[i] = table.data[4 * i + 1] as number;
@@ -1005,9 +1045,16 @@ class WindowSearch {
       else if ((known[0] as number) > tolerance) ok = false;
     }
     if (ok === undefined && (flags & (HAS_VALUE | HAS_BOUNDS)) === 0) {
-      this.cheapBounds("flush", i, table);
-      if ((table.data[4 * i + 1] as number) <= tolerance) ok = true;
-      else if ((table.data[4 * i] as number) > tolerance) ok = false;
+      // the tighter bound first where it costs no more than the cheap ones: it settles most tolerated shares alone
+      if (this.upperFirst[i] === 1) {
+        const upper = this.upper("flush", k, i, table);
+        if (upper !== undefined && upper <= tolerance) ok = true;
+      }
+      if (ok === undefined) {
+        this.cheapBounds("flush", i, table);
+        if ((table.data[4 * i + 1] as number) <= tolerance) ok = true;
+        else if ((table.data[4 * i] as number) > tolerance) ok = false;
+      }
     }
     if (ok === undefined) {
       const upper = this.upper("flush", k, i, table);

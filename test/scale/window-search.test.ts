@@ -110,6 +110,36 @@ describe("lossScaleWindow searches", () => {
     );
   });
 
+  it("gives the definition's window where tighter flush bounds are asked before the cheap ones, for a set and its subsets", () => {
+    // flushedEnergyUpperFirst: the searches then ask flushedEnergyUpper first; it is a valid bound however loose, so the
+    // window, its edges and their setters are the definition's
+    fc.assert(
+      fc.property(
+        fc.array(fc.tuple(shape, fc.constantFrom(0, 1e-9, 0.2, 3), fc.boolean()), { minLength: 1, maxLength: 10 }),
+        fc.array(fc.array(fc.nat(12), { maxLength: 3 }), { maxLength: 3 }),
+        (drawn, asides) => {
+          const tensors = curves(drawn.map(([s]) => ({ ...s, copy: false }))).map((t, i) => {
+            const [, loose, first] = drawn[i]!;
+            return { ...t, flushedEnergyUpper: (k: number) => Math.min(1, t.flushedEnergy(k) * (1 + loose) + loose * 1e-4), flushedEnergyUpperFirst: first };
+          });
+          const windowOf = lossScaleWindows(tensors, OPTIONS);
+          const whole = windowOf();
+          const d = directWindow(tensors, OPTIONS);
+          expect({ lowestLog2: whole.lowestLog2, highestLog2: whole.highestLog2, upperEdgeSetBy: whole.upperEdgeSetBy, lowerEdgeSetBy: whole.lowerEdgeSetBy }).toEqual(d);
+          for (const aside of asides) {
+            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+            const rest = tensors.filter((t) => !ids.has(t.id));
+            const w = windowOf(ids);
+            if (rest.length === 0) continue;
+            const r = directWindow(rest, OPTIONS);
+            expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(r);
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
+
   it("gives the definition's window for many alike tensors, where every bound is loose", () => {
     // a deep stack: hundreds of tensors whose curves differ by a hair, bounds [0, 1] around each
     const tensors: ScaledTensorCurves[] = Array.from({ length: 300 }, (_, i) => {
