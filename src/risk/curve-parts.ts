@@ -32,13 +32,14 @@ export interface LossScaleCurveParts {
  * gradient format and bfloat16's remedy) and the dynamic-scale simulation's ends of the horizon.
  */
 export interface GradientProfiles {
-  tensor: TensorPrediction;
-  start: MagnitudeProfile;
-  end: MagnitudeProfile;
+  readonly tensor: TensorPrediction;
+  readonly start: MagnitudeProfile;
+  readonly end: MagnitudeProfile;
   /** true when start and end have one distribution (end is then start) */
-  same: boolean;
-  startBounds: ProfileDrawBounds;
-  endBounds: ProfileDrawBounds;
+  readonly same: boolean;
+  /** the profiles' extreme-draw bounds (made when first asked: the searches ask few of them, most tensors' never) */
+  readonly startBounds: ProfileDrawBounds;
+  readonly endBounds: ProfileDrawBounds;
 }
 
 /** The {@link GradientProfiles} of every gradient tensor (activation and weight gradients) with a nonzero rms, in order. */
@@ -68,9 +69,33 @@ function profilesIn(tensor: TensorPrediction, draws: Float64Array, at: number): 
   // the simulation's laws then read two layouts)
   const same = sameDistribution(tensor.start, tensor.end);
   const start = riskProfile(tensor.start);
-  const end = same ? start : riskProfile(tensor.end);
-  const startBounds = new ProfileDrawBounds(start, draws, at);
-  return { tensor, start, end, same, startBounds, endBounds: same ? startBounds : new ProfileDrawBounds(end, draws, at + DRAWS) };
+  return new Profiles(tensor, start, same ? start : riskProfile(tensor.end), same, draws, at);
+}
+
+// A tensor's GradientProfiles, its extreme-draw bounds made on first use (each the same numbers, at its place in the
+// shared array): the window's searches take the tighter bounds of most tensors first, and an answer kept two bound
+// objects per tensor alive through its searches (~0.35 MB of each growth-1.1 check) that few were asked of.
+class Profiles implements GradientProfiles {
+  private startDraws: ProfileDrawBounds | undefined = undefined;
+  private endDraws: ProfileDrawBounds | undefined = undefined;
+
+  constructor(
+    readonly tensor: TensorPrediction,
+    readonly start: MagnitudeProfile,
+    readonly end: MagnitudeProfile,
+    readonly same: boolean,
+    private readonly draws: Float64Array,
+    private readonly at: number,
+  ) {}
+
+  get startBounds(): ProfileDrawBounds {
+    return (this.startDraws ??= new ProfileDrawBounds(this.start, this.draws, this.at));
+  }
+
+  get endBounds(): ProfileDrawBounds {
+    if (this.same) return this.startBounds;
+    return (this.endDraws ??= new ProfileDrawBounds(this.end, this.draws, this.at + DRAWS));
+  }
 }
 
 /**
