@@ -273,9 +273,10 @@ const ROUGH_LOW = 9;
 const MEMO_FIELDS = 10;
 // nothing asked yet
 const MEMO_START = Float64Array.of(NaN, 1, 1, NaN, NaN, NaN, 1, 1, NaN, 0);
-// roughOf's lower bound of the profile it last bounded (read at once by its caller)
-// (a typed array's slot: a module variable boxed each double stored, one per rough bound)
-const ROUGH_LOW_OF = new Float64Array(1);
+// roughOf's bounds [lower, upper] of the profile it last bounded (read at once by its caller), and overflowRiskRough's
+// of the tensor (typed arrays' slots: a module variable boxed each double stored, one per rough bound)
+const ROUGH_OF = new Float64Array(2);
+const ROUGH = new Float64Array(2);
 
 // One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
 // them, not one more per tensor and format), and each profile's segment upper bounds at the exponent last asked (the
@@ -386,23 +387,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // of its cost, for the edge setter's scan and the union bound's first narrowing. Their lower end comes with it
   // (overflowRiskRoughLower): a few of them settle a union bound far over the budget.
   overflowRiskRough(k: number): number {
-    const t = this.limits.overflowLevel * pow2Below(k);
-    // (log2 t once per exponent for every tensor of the format, overflowLog2: the same double roughOf took twice)
-    const tLog2 = this.overflowLog2(k, t);
-    const a = this.roughOf(0, t, tLog2);
-    const low = ROUGH_LOW_OF[0]!;
-    const memo = this.memo;
-    const m = this.m;
-    if (a < 1 && !this.parts.same) {
-      const b = this.roughOf(1, t, tLog2);
-      // the worse of two values is at least either's lower bound
-      memo[m + ROUGH_LOW] = Math.max(low, ROUGH_LOW_OF[0]!);
-      memo[m + ROUGH_K] = k;
-      return Math.max(a, b);
-    }
-    memo[m + ROUGH_LOW] = low;
-    memo[m + ROUGH_K] = k;
-    return a;
+    this.overflowRiskRoughInto(k, ROUGH);
+    return ROUGH[1]!;
   }
 
   // the shifted tails' lower bound at k, taken with overflowRiskRough (0 where they do not apply)
@@ -411,20 +397,51 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     return this.memo[this.m + ROUGH_LOW]!;
   }
 
-  // side 0 the start profile, 1 the end; enclosureApplies(profile, t) and its x = log2 t − log2 rms from the level
-  // table's numbers of the profile (the same tests and the same doubles)
-  private roughOf(side: number, t: number, tLog2: number): number {
+  // overflowRiskRoughLower and overflowRiskRough at k into `into` at 0 and 1 (each profile's pair through ROUGH_OF, not
+  // returned: a double returned from a call not inlined is a heap number)
+  overflowRiskRoughInto(k: number, into: Float64Array): boolean {
+    const t = this.limits.overflowLevel * pow2Below(k);
+    // (log2 t once per exponent for every tensor of the format, overflowLog2: the same double roughOf took twice)
+    const tLog2 = this.overflowLog2(k, t);
+    // the end only where the start's upper end is below 1 (one call of roughOf in a loop: two would not both be inlined
+    // with the tail read they make, whose doubles would then go to it as heap numbers)
+    const sides = this.parts.same ? 1 : 2;
+    let low = 0;
+    let high = 0;
+    for (let side = 0; side < sides; side++) {
+      this.roughOf(side, t, tLog2);
+      if (side === 0) {
+        low = ROUGH_OF[0]!;
+        high = ROUGH_OF[1]!;
+        if (!(high < 1)) break;
+      } else {
+        // the worse of two values is at least either's lower bound
+        low = Math.max(low, ROUGH_OF[0]!);
+        high = Math.max(high, ROUGH_OF[1]!);
+      }
+    }
+    const memo = this.memo;
+    const m = this.m;
+    into[0] = memo[m + ROUGH_LOW] = low;
+    memo[m + ROUGH_K] = k;
+    into[1] = high;
+    return true;
+  }
+
+  // side 0 the start profile, 1 the end: the shifted tails' [lower, upper] into ROUGH_OF ([0, 1] where they do not
+  // apply); enclosureApplies(profile, t) and its x = log2 t − log2 rms from the level table's numbers of the profile
+  // (the same tests and the same doubles)
+  private roughOf(side: number, t: number, tLog2: number): void {
     const base = this.levelsAt() + 3 * side;
     const table = this.levels;
     const j = 2 * this.index + side;
     if (table.applies[j] === 0 || !(t > 0) || t > table.bound[j]!) {
-      ROUGH_LOW_OF[0] = 0;
-      return 1;
+      ROUGH_OF[0] = 0;
+      ROUGH_OF[1] = 1;
+      return;
     }
     const levels = table.levels;
-    shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, PAIR, 0);
-    ROUGH_LOW_OF[0] = PAIR[0]!;
-    return PAIR[1]!;
+    shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, ROUGH_OF, 0);
   }
 
   // The moment bounds with the remainder at its peak (overflow-enclosure.ts enclosureQuick) of the worse of the two
@@ -466,8 +483,11 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const m = this.m;
     if (k === memo[m + FLUSH_K]) return;
     const t = this.limits.flushBound * pow2Below(k);
-    memo[m + FLUSH_START] = energyBelowUpper(this.parts.start, t);
-    memo[m + FLUSH_END] = this.parts.same ? memo[m + FLUSH_START]! : energyBelowUpper(this.parts.end, t);
+    // (one call in a loop, as overflowRiskRoughInto's: inlined once, its doubles need no heap numbers)
+    const parts = this.parts;
+    const sides = parts.same ? 1 : 2;
+    for (let side = 0; side < sides; side++) memo[m + FLUSH_START + side] = energyBelowUpper(side === 0 ? parts.start : parts.end, t);
+    if (parts.same) memo[m + FLUSH_END] = memo[m + FLUSH_START]!;
     memo[m + FLUSH_K] = k;
   }
 

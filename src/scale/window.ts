@@ -38,6 +38,11 @@ export interface ScaledTensorCurves {
   overflowRiskRough?(log2Scale: number): number;
   /** optional lower bound on overflowRisk that comes with overflowRiskRough at the same exponent, at no more cost */
   overflowRiskRoughLower?(log2Scale: number): number;
+  /**
+   * optional: overflowRiskRoughLower and overflowRiskRough at once into `into` at 0 and 1, asked for in place of them
+   * (two doubles returned from calls are two heap numbers); false (nothing written) where the curve has none
+   */
+  overflowRiskRoughInto?(log2Scale: number, into: Float64Array): boolean;
   /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
   overflowRiskLower?(log2Scale: number): number;
   /**
@@ -292,6 +297,8 @@ class WindowSearch {
   private readonly pair = new Float64Array(2);
   // one tensor's bounds from overflowRiskQuickInto (takeQuick)
   private readonly quick = new Float64Array(2);
+  // one tensor's rougher bounds [lower, upper] (takeRough)
+  private readonly rough = new Float64Array(2);
   // the table of each curve last asked for
   private lastOverflow: Table | undefined;
   private lastFlush: Table | undefined;
@@ -844,10 +851,9 @@ class WindowSearch {
   // the curve has none or they were taken
   private roughen(k: number, i: number, table: Table): boolean {
     if (((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) !== 0) return false;
-    const rough = this.takeRough(k, i, table);
-    if (rough === undefined) return false;
+    if (!this.takeRough(k, i, table)) return false;
     const low = Math.max(this.lows[i] as number, table.data[4 * i] as number);
-    this.setBounds(i, low, Math.max(low, rough));
+    this.setBounds(i, low, Math.max(low, this.rough[1] as number));
     return true;
   }
 
@@ -856,22 +862,29 @@ class WindowSearch {
   // something (an upper end below 1); otherwise the table is left to the cheap bounds (the rough [lower, 1] set aside).
   private roughFirst(k: number, i: number, table: Table): boolean {
     if (((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_ROUGH | HAS_BOUNDS)) !== 0) return false;
-    const rough = this.takeRough(k, i, table);
-    if (rough !== undefined && rough < 1) return true;
+    if (this.takeRough(k, i, table) && (this.rough[1] as number) < 1) return true;
     table.flags[i] = (table.flags[i] as number) & ~HAS_BOUNDS;
     return false;
   }
 
   // the curve's rougher overflow bounds at k taken into the table (marked as asked, the high lowered to the upper, the
-  // low raised to the lower, a low of 0 where the table had no bounds); undefined when the curve has none
-  private takeRough(k: number, i: number, table: Table): number | undefined {
+  // low raised to the lower, a low of 0 where the table had no bounds) and left in `rough` ([lower, upper]); false when
+  // the curve has none
+  private takeRough(k: number, i: number, table: Table): boolean {
     const flags = table.flags[i] as number;
     const t = this.tensors[i] as ScaledTensorCurves;
-    const rough = t.overflowRiskRough?.(k);
+    const rough = this.rough;
     table.flags[i] = flags | HAS_ROUGH;
-    if (rough === undefined) return undefined;
-    this.takeBounds(i, table, flags, t.overflowRiskRoughLower?.(k) ?? 0, rough);
-    return rough;
+    if (t.overflowRiskRoughInto !== undefined) {
+      if (!t.overflowRiskRoughInto(k, rough)) return false;
+    } else {
+      const upper = t.overflowRiskRough?.(k);
+      if (upper === undefined) return false;
+      rough[0] = t.overflowRiskRoughLower?.(k) ?? 0;
+      rough[1] = upper;
+    }
+    this.takeBounds(i, table, flags, rough[0] as number, rough[1] as number);
+    return true;
   }
 
   // Overflow bounds [low, high] of tensor i taken into the table (its flags as they were before this ask): the table's
@@ -987,8 +1000,7 @@ class WindowSearch {
       const flags = table.flags[i] as number;
       if (curve === "overflow" && (highs[i] as number) > floor && (flags & (HAS_VALUE | HAS_UPPER | HAS_ROUGH)) === 0 && (flags & HAS_BOUNDS) !== 0) {
         // a rougher bound first, where the curve has one: it settles many tensors below the value found
-        const rough = this.takeRough(k, i, table);
-        if (rough !== undefined && rough < (highs[i] as number)) highs[i] = rough;
+        if (this.takeRough(k, i, table) && (this.rough[1] as number) < (highs[i] as number)) highs[i] = this.rough[1] as number;
         if ((highs[i] as number) < floor) continue;
       }
       if (curve === "overflow" && (highs[i] as number) > floor && (highs[i] as number) > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table)) {
