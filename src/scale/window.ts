@@ -157,6 +157,8 @@ export function lossScaleWindows(
   // (the search is exact for a set, so a window found once is the window)
   const found = new Map<string, ScaleWindow>();
   const active = new Uint8Array(tensors.length);
+  // every tensor's id, read once when the first set aside is asked (each scan for an id read them through the curves)
+  let ids: string[] | undefined;
   const windows: WindowsOf = (setAside) => {
     const key = setAside === undefined || setAside.size === 0 ? "" : JSON.stringify([...setAside].sort());
     const known = found.get(key);
@@ -167,7 +169,11 @@ export function lossScaleWindows(
         let indices = indicesOf.get(id);
         if (indices === undefined) {
           indices = [];
-          for (let i = 0; i < tensors.length; i++) if ((tensors[i] as ScaledTensorCurves).id === id) indices.push(i);
+          if (ids === undefined) {
+            ids = new Array<string>(tensors.length);
+            for (let i = 0; i < tensors.length; i++) ids[i] = (tensors[i] as ScaledTensorCurves).id;
+          }
+          for (let i = 0; i < ids.length; i++) if (ids[i] === id) indices.push(i);
           indicesOf.set(id, indices);
         }
         for (let j = 0; j < indices.length; j++) active[indices[j] as number] = 0;
