@@ -242,9 +242,10 @@ type Curve = "overflow" | "flush";
 const LINEAR_BELOW = 8;
 // the exponents' spread the growth's powers are kept for (WindowSearch.powers): the searched range's, with room
 const POWERS = 128;
-// the union bound's first test takes this many tensors' lower bounds (overByFew)
+// the union bound's first test takes up to this many tensors' lower bounds (overByFew): all of them where the sum has
+// not passed the budget before (a stack of alike layers, each far under it, passes it only after many; the rough bounds
+// taken are kept for the narrowing, which would take them first, so what the test takes in vain costs little)
 const FEW = 256;
-const FEW_FIRST = 32;
 
 // What a search knows of one curve: its tables by exponent (for the flush curve: k + flushShift), ascending by it, the
 // first 32 made and per tensor a bit for each that knows something of it (`known` visits those alone: a tensor is
@@ -672,9 +673,6 @@ class WindowSearch {
       // a probability is at least 0; the lower bounds' sum is over the budget as riskWithinByBounds tests it
       if (a > 0) low += a;
       if (Math.min(1, low * (1 - 1e-12)) > budget) return true;
-      // too little from the first few to reach the budget at their rate (near or below the edge, or a law whose rough
-      // bounds are loose): the narrowing is left to decide, without the rest of them
-      if (taken === FEW_FIRST && !(low * (FEW / FEW_FIRST) > budget)) return false;
     }
     return false;
   }
