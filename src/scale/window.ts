@@ -1061,8 +1061,11 @@ class WindowSearch {
       else if ((known[0] as number) > tolerance) ok = false;
     }
     if (ok === undefined && (flags & (HAS_VALUE | HAS_BOUNDS)) === 0) {
-      // the tighter bound first where it costs no more than the cheap ones: it settles most tolerated shares alone
-      if (this.upperFirst[i] === 1) {
+      // the tighter bound first where it costs no more than the cheap ones: it settles most tolerated shares alone, and
+      // the flush edge's setter one binade down is then found by the growth bound from it. Not at the lowest exponent:
+      // an edge there has nothing below it to search, and the cheap bounds, the cheaper where they decide, settle
+      // nearly every share there
+      if (this.upperFirst[i] === 1 && k > this.o.lowestLog2) {
         const upper = this.upper("flush", k, i, table);
         if (upper !== undefined && upper <= tolerance) ok = true;
       }
