@@ -26,6 +26,17 @@ export class IndexHeap {
     if (ka !== kb) return ka > kb;
     return this.rank === null ? a < b : this.rank[a]! < this.rank[b]!;
   }
+  /**
+   * Empty the heap and fill it with the first `count` of `indices` (distinct, each in [0, keys.length)) at once: Floyd's
+   * bottom-up construction (Floyd 1964, Algorithm 245: a sift-down from each parent, O(count) against O(count log
+   * count) for as many pushes). The order is strict (ties by rank), so the pops come out as after the pushes.
+   */
+  fill(indices: Int32Array, count: number): void {
+    const items = this.items;
+    for (let k = 0; k < count; k++) items[k] = indices[k]!;
+    this.count = count;
+    for (let j = (count >> 1) - 1; j >= 0; j--) this.siftDown(j, items[j]!, count);
+  }
   /** add index i (in [0, keys.length), not in the heap already) */
   push(i: number): void {
     const items = this.items;
@@ -57,5 +68,20 @@ export class IndexHeap {
       items[j] = last;
     }
     return top;
+  }
+  // fill's step: index i at slot j of the first n slots, the larger child moved up until i is above both its children
+  // (pop's loop; kept apart so the window search's pops stay as they were)
+  private siftDown(j: number, i: number, n: number): void {
+    const items = this.items;
+    for (;;) {
+      const l = 2 * j + 1;
+      if (l >= n) break;
+      const r = l + 1;
+      const c = r < n && this.above(items[r]!, items[l]!) ? r : l;
+      if (!this.above(items[c]!, i)) break;
+      items[j] = items[c]!;
+      j = c;
+    }
+    items[j] = i;
   }
 }

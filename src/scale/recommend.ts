@@ -579,6 +579,11 @@ const SHIFTED = new Float64Array(2);
 const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
+// the tensors an OverflowNarrowing heaps at once (OverflowNarrowing.narrow), grown to the largest count asked
+let FILL = new Int32Array(0);
+// HorizonPoint.sweep's products over the tensors it keeps, Π(1 − low) and Π(1 − high), for OverflowNarrowing.update,
+// and 1 where one of them is not integrated
+const SWEPT = new Float64Array(3);
 // BoundedCurves.boundsOf's moment bounds, before they are merged with the shifted tails' or the segment's
 const ENCLOSED = new Float64Array(2);
 const SEGMENT_ENOUGH = 1e-9;
@@ -846,18 +851,36 @@ class HorizonPoint {
    * The shifted-tail bounds at log2 t of the tensors in `live` (the first `count`) into `lows` and `highs` where the law has them and they are tighter
    * (src/scale/overflow-enclosure.ts shiftBounds: two normal tails each), an integrated tensor (`state` 2) aside. Read off the start and
    * end profiles, without making the profiles here: inside the horizon the rms's logarithm is the interpolation of
-   * theirs (within far less than the billionth of a binade each level is moved outward by).
+   * theirs (within far less than the billionth of a binade each level is moved outward by). In the same pass `live`
+   * keeps only the tensors whose upper bound is above 2^−54 (the number kept is returned), and `into` gets the products
+   * Π(1 − low) and Π(1 − high) over them in their order, and 1 where one of them is not integrated (0 otherwise).
    */
-  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number): void {
+  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number, into: Float64Array): number {
     const c = this.shifts ?? this.shiftConstants();
+    let kept = 0;
+    let noneHigh = 1;
+    let noneLow = 1;
+    let waiting = 0;
     for (let k = 0; k < count; k++) {
       const i = live[k]!;
+      const integrated = state[i] === 2;
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is
-      if (c.ok[i] === 0 || state[i] === 2 || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!) continue;
-      shiftBoundsTabled(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
-      if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
-      if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
+      if (!(c.ok[i] === 0 || integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
+        shiftBoundsTabled(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+        if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
+        if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
+      }
+      const high = highs[i]!;
+      if (!(high > 2 ** -54)) continue;
+      live[kept++] = i;
+      if (!integrated) waiting = 1;
+      noneHigh *= 1 - lows[i]!;
+      noneLow *= 1 - high;
     }
+    into[0] = noneHigh;
+    into[1] = noneLow;
+    into[2] = waiting;
+    return kept;
   }
 
   private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
@@ -1012,9 +1035,10 @@ class OverflowNarrowing implements OverflowBounds {
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
   // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product. Made when the heap is
   // first filled; before, each narrowing sets many bounds at once and takes the products in one pass
+  // (both trees in one array, node j's low-bound factor product at 2j and its high-bound one at 2j + 1: a changed tensor
+  // walks one path for both)
   private size = 0;
-  private lowFactors: Float64Array | undefined;
-  private highFactors: Float64Array | undefined;
+  private factors: Float64Array | undefined;
   // the tensors whose upper bound here may be above 2^−54 (the first `liveCount`), set when the bounds are first set
   // and thinned after the sweep: the others leave every product exactly as it is (1 − p rounds to 1), their upper
   // bounds here are the larger scale's (still valid: p_i grows with the scale), and no pass over the tensors visits them
@@ -1046,31 +1070,35 @@ class OverflowNarrowing implements OverflowBounds {
     let size = 1;
     while (size < n) size *= 2;
     this.size = size;
-    const buffer = new ArrayBuffer(32 * size);
-    const lowFactors = new Float64Array(buffer, 0, 2 * size).fill(1);
-    const highFactors = new Float64Array(buffer, 16 * size, 2 * size).fill(1);
+    const factors = new Float64Array(4 * size).fill(1);
     const lows = this.lows;
     const highs = this.highs;
     const live = this.live;
     // the other leaves stay 1: their factors are exactly 1
     for (let k = 0; k < this.liveCount; k++) {
       const i = live[k]!;
-      highFactors[size + i] = 1 - highs[i]!;
-      lowFactors[size + i] = 1 - lows[i]!;
+      const leaf = 2 * (size + i);
+      factors[leaf] = 1 - lows[i]!;
+      factors[leaf + 1] = 1 - highs[i]!;
     }
     for (let j = size - 1; j >= 1; j--) {
-      highFactors[j] = highFactors[2 * j]! * highFactors[2 * j + 1]!;
-      lowFactors[j] = lowFactors[2 * j]! * lowFactors[2 * j + 1]!;
+      factors[2 * j] = factors[4 * j]! * factors[4 * j + 2]!;
+      factors[2 * j + 1] = factors[4 * j + 1]! * factors[4 * j + 3]!;
     }
-    this.lowFactors = lowFactors;
-    this.highFactors = highFactors;
+    this.factors = factors;
   }
 
-  private setFactor(tree: Float64Array | undefined, i: number, factor: number): void {
-    if (tree === undefined) return;
+  // tensor i's two factors (1 − its low, 1 − its high) and the products on its path up
+  private setFactors(i: number, lowFactor: number, highFactor: number): void {
+    const factors = this.factors;
+    if (factors === undefined) return;
     let j = this.size + i;
-    tree[j] = factor;
-    for (j >>= 1; j >= 1; j >>= 1) tree[j] = tree[2 * j]! * tree[2 * j + 1]!;
+    factors[2 * j] = lowFactor;
+    factors[2 * j + 1] = highFactor;
+    for (j >>= 1; j >= 1; j >>= 1) {
+      factors[2 * j] = factors[4 * j]! * factors[4 * j + 2]!;
+      factors[2 * j + 1] = factors[4 * j + 1]! * factors[4 * j + 3]!;
+    }
   }
 
   // into the heap, keyed by what its bounds leave open: 1 − (1 − high)/(1 − low) = 1 − e^{−open}, in the order of open
@@ -1109,8 +1137,7 @@ class OverflowNarrowing implements OverflowBounds {
     this.lows[i] = p;
     this.highs[i] = p;
     this.state[i] = 2;
-    this.setFactor(this.lowFactors, i, 1 - p);
-    this.setFactor(this.highFactors, i, 1 - p);
+    this.setFactors(i, 1 - p, 1 - p);
     if (this.largest < 0 || p > this.lows[this.largest]!) {
       this.largest = i;
       this.lead.index = i;
@@ -1120,6 +1147,8 @@ class OverflowNarrowing implements OverflowBounds {
   narrow(goal?: number): void {
     if (this.exact) return;
     const highs = this.highs;
+    // true when this call swept: SWEPT then holds the products over the live tensors
+    let swept = false;
     const n = highs.length;
     if (!this.started) {
       this.started = true;
@@ -1158,27 +1187,35 @@ class OverflowNarrowing implements OverflowBounds {
     } else if (this.sweepPending) {
       // every tensor's shifted-tail bounds here where tighter, in one pass (a Gaussian-law tensor by two normal
       // tails): enough for most; the rest are then ordered by what they leave open
+      // (thinning the live list and taking the products update() would take over it, in the same pass)
       this.sweepPending = false;
-      const live = this.live;
-      this.point.sweep(this.levelLog2, this.lows, highs, this.state, live, this.liveCount);
-      let count = 0;
-      for (let k = 0; k < this.liveCount; k++) {
-        const i = live[k]!;
-        if (!(highs[i]! > 2 ** -54)) continue;
-        live[count++] = i;
-        if (this.state[i] !== 2) this.heapPending = true;
-      }
-      this.liveCount = count;
+      this.liveCount = this.point.sweep(this.levelLog2, this.lows, highs, this.state, this.live, this.liveCount, SWEPT);
+      if (SWEPT[2] === 1) this.heapPending = true;
+      swept = true;
     } else {
       if (this.heapPending) {
         this.heapPending = false;
         this.buildProducts();
-        this.heap = new IndexHeap(this.open);
+        const heap = (this.heap = new IndexHeap(this.open));
+        // every tensor not integrated, keyed, then heaped at once (IndexHeap.fill: the same pops as pushes one by one,
+        // the order being strict; a key that is not a number would not be, and takes the pushes)
         const live = this.live;
+        const lows = this.lows;
+        const open = this.open;
+        const waiting = (FILL.length >= this.liveCount ? FILL : (FILL = new Int32Array(this.point.n)));
+        let count = 0;
+        let ordered = true;
         for (let k = 0; k < this.liveCount; k++) {
           const i = live[k]!;
-          if (this.state[i] !== 2) this.push(i);
+          if (this.state[i] === 2) continue;
+          const low = lows[i]!;
+          const key = (highs[i]! - low) / (1 - low);
+          open[i] = key;
+          if (!(key === key)) ordered = false;
+          waiting[count++] = i;
         }
+        if (ordered) heap.fill(waiting, count);
+        else for (let k = 0; k < count; k++) heap.push(waiting[k]!);
       }
       // a batch of work: an upper bound costs about a quarter of an integral, the moment bounds with the remainder at
       // its peak a tenth
@@ -1194,14 +1231,16 @@ class OverflowNarrowing implements OverflowBounds {
           const enclosed = this.point.enclose(i, this.level, this.levelLog2, ENCLOSURE, quick);
           this.state[i] = enclosed && quick ? 3 : 1;
           const upper = enclosed ? ENCLOSURE[1]! : probabilityAnyAboveUpper(this.point.profile(i), this.level);
+          let moved = false;
           if (upper < highs[i]!) {
             highs[i] = upper;
-            this.setFactor(this.highFactors, i, 1 - upper);
+            moved = true;
           }
           if (enclosed && ENCLOSURE[0]! > this.lows[i]!) {
             this.lows[i] = ENCLOSURE[0]!;
-            this.setFactor(this.lowFactors, i, 1 - ENCLOSURE[0]!);
+            moved = true;
           }
+          if (moved) this.setFactors(i, 1 - this.lows[i]!, 1 - highs[i]!);
           if (highs[i]! > 2 ** -54) this.push(i);
           work -= enclosed && quick ? 0.1 : 0.25;
         } else {
@@ -1224,7 +1263,8 @@ class OverflowNarrowing implements OverflowBounds {
       this.exact = true;
       return;
     }
-    this.update();
+    if (swept) this.boundBy(SWEPT[0]!, SWEPT[1]!);
+    else this.update();
   }
 
   // Bounds on the computed 1 − Π(1 − p_i): the factors at the bounds of each p_i (a factor is 1 unless p_i is above
@@ -1234,9 +1274,9 @@ class OverflowNarrowing implements OverflowBounds {
   private update(): void {
     let noneHigh: number;
     let noneLow: number;
-    if (this.lowFactors !== undefined) {
-      noneHigh = this.lowFactors[1]!;
-      noneLow = this.highFactors![1]!;
+    if (this.factors !== undefined) {
+      noneHigh = this.factors[2]!;
+      noneLow = this.factors[3]!;
     } else {
       // no trees yet: the products over the live tensors in their order (the others' factors are exactly 1)
       const lows = this.lows;
@@ -1250,6 +1290,11 @@ class OverflowNarrowing implements OverflowBounds {
         noneLow *= 1 - highs[i]!;
       }
     }
+    this.boundBy(noneHigh, noneLow);
+  }
+
+  // low and high from the products Π(1 − low_i) (noneHigh) and Π(1 − high_i) (noneLow), as update() describes
+  private boundBy(noneHigh: number, noneLow: number): void {
     const widen = 4 * (this.point.n + 2) * 2 ** -53;
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
