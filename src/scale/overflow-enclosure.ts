@@ -378,6 +378,37 @@ function tailGrid(): Float64Array {
 const TAIL_FIT = 1.3e-7;
 
 /**
+ * {@link shiftBoundsTabled} from its two grid arguments, up = ((x − c_hi)/s − TAIL_LOW)·TAIL_STEPS and down the same with
+ * c_lo, for a caller that keeps them as affine functions of log2 t (x = log2 t − log2 rms: up = log2 t·(TAIL_STEPS/s) +
+ * a constant per tensor, {@link SHIFT_GRID_STEPS}, {@link SHIFT_GRID_ORIGIN}), without two divisions per tensor. Rounded
+ * that way an argument strays from shiftBoundsTabled's by a few units in the last place of (|log2 t| + |log2 rms| +
+ * |c|)·TAIL_STEPS/s, as shiftBoundsTabled's own rounding of x − c does: as if c_hi or c_lo moved by ~1e-14 binade
+ * (levels within 2^±64), which moves P(V > c_hi) ≤ 2^−64, the lower level's mass and the tails by a relative ~u·1e-14/s,
+ * far inside the 1e-4 each bound is widened by (2e-5 of it taken, see shiftBounds). False (nothing written) where up is
+ * not a number: the caller then takes shiftBounds.
+ */
+export function shiftBoundsGridded(up: number, down: number, lowMass: number, into: Float64Array, at: number): boolean {
+  const table = tailGrid();
+  const last = table.length - 1;
+  const j = Math.floor(up);
+  const tail = j < 0 ? 1 : j >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[j] as number) * (1 + TAIL_FIT);
+  if (!(tail === tail)) return false;
+  into[at + 1] = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  if (tail < 1e-15) {
+    into[at] = 0;
+    return true;
+  }
+  const k = Math.ceil(down);
+  const lowerTail = k > last ? 0 : k <= 0 ? (table[0] as number) * (1 - TAIL_FIT) : (table[k] as number) * (1 - TAIL_FIT);
+  const lower = lowMass * lowerTail;
+  into[at] = lower < 1e-15 ? 0 : lower * (1 - 1e-4);
+  return true;
+}
+/** {@link shiftBoundsGridded}'s grid steps per unit of the normal tail's argument, and the grid's origin (−TAIL_LOW·TAIL_STEPS). */
+export const SHIFT_GRID_STEPS = TAIL_STEPS;
+export const SHIFT_GRID_ORIGIN = -TAIL_LOW * TAIL_STEPS;
+
+/**
  * {@link shiftBounds} with each normal tail bounded by the grid points about its argument instead of evaluated: a
  * little looser (at most a factor e^{(u + 1)/256} on Q(u), 4% at u = 8, against the shift's factor of a few) for a table
  * read each. For the simulation's sweeps over every tensor; the same contract as shiftBounds.

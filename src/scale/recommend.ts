@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels, type LevelMoments } from "./overflow-enclosure.js";
+import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -845,7 +845,11 @@ class HorizonPoint {
   }
 
   // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
-  private shifts: { ok: Uint8Array; rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array } | undefined;
+  // (bound −∞ where the law has none of these bounds; slope, up and down: shiftBoundsGridded's arguments as log2 t·slope
+  // + up and + down, the other numbers for shiftBounds where those are not numbers)
+  private shifts:
+    | { rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array; slope: Float64Array; up: Float64Array; down: Float64Array }
+    | undefined;
 
   /**
    * The shifted-tail bounds at log2 t of the tensors in `live` (the first `count`) into `lows` and `highs` where the law has them and they are tighter
@@ -864,9 +868,14 @@ class HorizonPoint {
     for (let k = 0; k < count; k++) {
       const i = live[k]!;
       const integrated = state[i] === 2;
-      // an integrated tensor, or one already bounded below anything that moves a product, is left as it is
-      if (!(c.ok[i] === 0 || integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
-        shiftBoundsTabled(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+      // an integrated tensor, or one already bounded below anything that moves a product, is left as it is (and one
+      // whose law has no such bounds: its bound is −∞ here)
+      if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
+        // the grid arguments as affine functions of log2 t (shiftBoundsGridded), else the tails themselves
+        const slope = c.slope[i]!;
+        if (!shiftBoundsGridded(levelLog2 * slope + c.up[i]!, levelLog2 * slope + c.down[i]!, c.mass[i]!, SHIFTED, 0)) {
+          shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+        }
         if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
         if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
       }
@@ -886,13 +895,15 @@ class HorizonPoint {
   private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
     const n = this.n;
     const c = {
-      ok: new Uint8Array(n),
       rmsLog2: new Float64Array(n),
       spread: new Float64Array(n),
       high: new Float64Array(n),
       low: new Float64Array(n),
       mass: new Float64Array(n),
-      bound: new Float64Array(n),
+      bound: new Float64Array(n).fill(-Infinity),
+      slope: new Float64Array(n),
+      up: new Float64Array(n),
+      down: new Float64Array(n),
     };
     const p = this.progress;
     const ends = this.ends.made();
@@ -917,13 +928,19 @@ class HorizonPoint {
         } else rmsLog2 = a;
       }
       if (!(spread > 0) || !Number.isFinite(rmsLog2)) continue;
-      c.ok[i] = 1;
+      const high = ends.levels[3 * j]! + slack;
+      const low = ends.levels[3 * j + 1]! - slack;
       c.rmsLog2[i] = rmsLog2;
       c.spread[i] = spread;
-      c.high[i] = ends.levels[3 * j]! + slack;
-      c.low[i] = ends.levels[3 * j + 1]! - slack;
+      c.high[i] = high;
+      c.low[i] = low;
       c.mass[i] = ends.levels[3 * j + 2]!;
       c.bound[i] = ends.bound[j]!;
+      // shiftBoundsTabled's grid arguments ((log2 t − log2 rms − level)/s − TAIL_LOW)·TAIL_STEPS as log2 t·slope + a constant
+      const slope = SHIFT_GRID_STEPS / spread;
+      c.slope[i] = slope;
+      c.up[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
+      c.down[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
     }
     this.shifts = c;
     return c;

@@ -9,7 +9,7 @@ import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src
 import { energyBelow, limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { normalSf } from "../../src/numeric/normal.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
-import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsTabled, shiftLevels } from "../../src/scale/overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS } from "../../src/scale/overflow-enclosure.js";
 import { dynamicModel, profileAt } from "../../src/scale/recommend.js";
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
@@ -226,6 +226,41 @@ describe("shiftBoundsTabled", () => {
       ),
       { numRuns: 3000 },
     );
+  });
+});
+
+describe("shiftBoundsGridded", () => {
+  it("contains the computed probability from its arguments as affine functions of log2 t, at any rms (property)", () => {
+    // the simulation's sweep keeps up = log2 t·(256/s) + a constant per tensor; the bounds must still hold about
+    // the integral of src/risk/profile.ts, whatever the rounding of that form
+    const gridded = new Float64Array(2);
+    const levels = new Float64Array(3);
+    fc.assert(
+      fc.property(
+        fc.constantFrom("gaussian", "half-gaussian"),
+        fc.double({ min: 16, max: 1e9, noNaN: true }),
+        fc.integer({ min: 0, max: 1000 }).map((j) => 0.01 + (5 * j) / 1000),
+        fc.integer({ min: 0, max: 1000 }).map((j) => -12 + (60 * j) / 1000),
+        fc.integer({ min: -40, max: 40 }),
+        (shape, n, s, above, rmsLog2) => {
+          const p: MagnitudeProfile = { elements: n, zeroFraction: 0, shape, rms: 2 ** rmsLog2, log2Spread: s };
+          const tLog2 = above + rmsLog2;
+          shiftLevels(n, levels, 0);
+          const slope = SHIFT_GRID_STEPS / s;
+          const up = SHIFT_GRID_ORIGIN - (rmsLog2 + levels[0]!) * slope;
+          const down = SHIFT_GRID_ORIGIN - (rmsLog2 + levels[1]!) * slope;
+          expect(shiftBoundsGridded(tLog2 * slope + up, tLog2 * slope + down, levels[2]!, gridded, 0)).toBe(true);
+          const value = probabilityAnyAbove(p, 2 ** tLog2);
+          expect(gridded[0]).toBeLessThanOrEqual(value);
+          expect(gridded[1]).toBeGreaterThanOrEqual(value);
+        },
+      ),
+      { numRuns: 2000 },
+    );
+  });
+
+  it("declines an argument that is not a number", () => {
+    expect(shiftBoundsGridded(NaN, NaN, 1, new Float64Array(2), 0)).toBe(false);
   });
 });
 
