@@ -579,9 +579,6 @@ const SHIFTED = new Float64Array(2);
 const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
-// HorizonPoint's shifted-tail constants per tensor (HorizonPoint.shifts), and one tensor's numbers (shiftNumbers)
-const SHIFT_FIELDS = 5;
-const SHIFT_NUMBERS = new Float64Array(5);
 // the tensors an OverflowNarrowing heaps at once (OverflowNarrowing.narrow), grown to the largest count asked
 let FILL = new Int32Array(0);
 // HorizonPoint.sweep's products over the tensors it keeps, Π(1 − low) and Π(1 − high), for OverflowNarrowing.update,
@@ -847,10 +844,12 @@ class HorizonPoint {
     return d;
   }
 
-  // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep,
-  // SHIFT_FIELDS a tensor side by side (the sweep reads them together): log2 of its bound (−∞ where the law has none of
-  // these bounds), and shiftBoundsGridded's slope, up, down (its arguments as log2 t·slope + up and + down) and mass
-  private shifts: Float64Array | undefined;
+  // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
+  // (bound −∞ where the law has none of these bounds; slope, up and down: shiftBoundsGridded's arguments as log2 t·slope
+  // + up and + down, the other numbers for shiftBounds where those are not numbers)
+  private shifts:
+    | { rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array; slope: Float64Array; up: Float64Array; down: Float64Array }
+    | undefined;
 
   /**
    * The shifted-tail bounds at log2 t of the tensors in `live` (the first `count`) into `lows` and `highs` where the law has them and they are tighter
@@ -871,14 +870,11 @@ class HorizonPoint {
       const integrated = state[i] === 2;
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is (and one
       // whose law has no such bounds: its bound is −∞ here)
-      const at = SHIFT_FIELDS * i;
-      if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c[at]!)) {
+      if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
         // the grid arguments as affine functions of log2 t (shiftBoundsGridded), else the tails themselves
-        const slope = c[at + 1]!;
-        if (!shiftBoundsGridded(levelLog2 * slope + c[at + 2]!, levelLog2 * slope + c[at + 3]!, c[at + 4]!, SHIFTED, 0)) {
-          this.shiftNumbers(i);
-          const x = SHIFT_NUMBERS;
-          shiftBounds(levelLog2 - x[0]!, x[1]!, x[2]!, x[3]!, x[4]!, SHIFTED, 0);
+        const slope = c.slope[i]!;
+        if (!shiftBoundsGridded(levelLog2 * slope + c.up[i]!, levelLog2 * slope + c.down[i]!, c.mass[i]!, SHIFTED, 0)) {
+          shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
         }
         if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
         if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
@@ -896,61 +892,58 @@ class HorizonPoint {
     return kept;
   }
 
-  private shiftConstants(): Float64Array {
+  private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
     const n = this.n;
-    const c = new Float64Array(SHIFT_FIELDS * n);
-    const ends = this.ends.made();
-    const x = SHIFT_NUMBERS;
-    for (let i = 0; i < n; i++) {
-      const at = SHIFT_FIELDS * i;
-      if (!this.shiftNumbers(i)) {
-        c[at] = -Infinity;
-        continue;
-      }
-      // the law, count and bound of the profile here: the end's at the end, else the start's (profileBetween)
-      c[at] = ends.bound[this.progress >= 1 ? 2 * i + 1 : 2 * i]!;
-      // shiftBoundsTabled's grid arguments ((log2 t − log2 rms − level)/s − TAIL_LOW)·TAIL_STEPS as log2 t·slope + a constant
-      const slope = SHIFT_GRID_STEPS / x[1]!;
-      c[at + 1] = slope;
-      c[at + 2] = SHIFT_GRID_ORIGIN - (x[0]! + x[2]!) * slope;
-      c[at + 3] = SHIFT_GRID_ORIGIN - (x[0]! + x[3]!) * slope;
-      c[at + 4] = x[4]!;
-    }
-    this.shifts = c;
-    return c;
-  }
-
-  // tensor i's shiftBounds numbers here into SHIFT_NUMBERS (log2 rms, spread, the two levels, the lower level's mass),
-  // false where the law has no such bounds
-  private shiftNumbers(i: number): boolean {
+    const c = {
+      rmsLog2: new Float64Array(n),
+      spread: new Float64Array(n),
+      high: new Float64Array(n),
+      low: new Float64Array(n),
+      mass: new Float64Array(n),
+      bound: new Float64Array(n).fill(-Infinity),
+      slope: new Float64Array(n),
+      up: new Float64Array(n),
+      down: new Float64Array(n),
+    };
     const p = this.progress;
     const ends = this.ends.made();
     // the law, count and bound of the profile here: the end's at the end, else the start's (profileBetween)
-    const j = p >= 1 ? 2 * i + 1 : 2 * i;
-    if (ends.ok[j] === 0) return false;
-    let rmsLog2: number;
-    let spread: number;
-    let slack = 0;
-    if (p <= 0 || p >= 1) {
-      rmsLog2 = ends.rmsLog2[j]!;
-      spread = ends.spread[j]!;
-    } else {
-      spread = spreadBetween(ends.spread[2 * i]!, ends.spread[2 * i + 1]!, p);
-      const a = ends.rmsLog2[2 * i]!;
-      const b = ends.rmsLog2[2 * i + 1]!;
-      if (ends.bothRms[i] === 1) {
-        rmsLog2 = a * (1 - p) + b * p;
-        slack = 1e-9;
-      } else rmsLog2 = a;
+    const side = p >= 1 ? 1 : 0;
+    for (let i = 0; i < n; i++) {
+      const j = 2 * i + side;
+      if (ends.ok[j] === 0) continue;
+      let rmsLog2: number;
+      let spread: number;
+      let slack = 0;
+      if (p <= 0 || p >= 1) {
+        rmsLog2 = ends.rmsLog2[j]!;
+        spread = ends.spread[j]!;
+      } else {
+        spread = spreadBetween(ends.spread[2 * i]!, ends.spread[2 * i + 1]!, p);
+        const a = ends.rmsLog2[2 * i]!;
+        const b = ends.rmsLog2[2 * i + 1]!;
+        if (ends.bothRms[i] === 1) {
+          rmsLog2 = a * (1 - p) + b * p;
+          slack = 1e-9;
+        } else rmsLog2 = a;
+      }
+      if (!(spread > 0) || !Number.isFinite(rmsLog2)) continue;
+      const high = ends.levels[3 * j]! + slack;
+      const low = ends.levels[3 * j + 1]! - slack;
+      c.rmsLog2[i] = rmsLog2;
+      c.spread[i] = spread;
+      c.high[i] = high;
+      c.low[i] = low;
+      c.mass[i] = ends.levels[3 * j + 2]!;
+      c.bound[i] = ends.bound[j]!;
+      // shiftBoundsTabled's grid arguments ((log2 t − log2 rms − level)/s − TAIL_LOW)·TAIL_STEPS as log2 t·slope + a constant
+      const slope = SHIFT_GRID_STEPS / spread;
+      c.slope[i] = slope;
+      c.up[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
+      c.down[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
     }
-    if (!(spread > 0) || !Number.isFinite(rmsLog2)) return false;
-    const x = SHIFT_NUMBERS;
-    x[0] = rmsLog2;
-    x[1] = spread;
-    x[2] = ends.levels[3 * j]! + slack;
-    x[3] = ends.levels[3 * j + 1]! - slack;
-    x[4] = ends.levels[3 * j + 2]!;
-    return true;
+    this.shifts = c;
+    return c;
   }
 
   // per tensor here: what the moment bounds take of its profile (src/scale/overflow-enclosure.ts enclosureWith), each
