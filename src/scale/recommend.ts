@@ -1164,8 +1164,7 @@ class OverflowNarrowing implements OverflowBounds {
   narrow(goal?: number): void {
     if (this.exact) return;
     const highs = this.highs;
-    // true when this call took the products Π(1 − low_i) and Π(1 − high_i) over the live tensors itself (in SWEPT), for
-    // update() not to take them again
+    // true when this call swept: SWEPT then holds the products over the live tensors
     let swept = false;
     const n = highs.length;
     if (!this.started) {
@@ -1175,15 +1174,11 @@ class OverflowNarrowing implements OverflowBounds {
       let first = -1;
       const live = this.live;
       let count = 0;
-      // Π(1 − high_i) over the live tensors but `first` (every low is 0 yet: the other product is exactly 1)
-      let rest = 1;
       if (above === undefined) {
         highs.fill(1);
         for (let i = 0; i < n; i++) live[i] = i;
         count = n;
         if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
-        // every factor 1 − 1 = 0
-        if (count > (first >= 0 ? 1 : 0)) rest = 0;
       } else {
         highs.set(above.highs);
         const aboveLive = above.live;
@@ -1198,25 +1193,12 @@ class OverflowNarrowing implements OverflowBounds {
           }
           if (highs[i]! > 2 ** -54) {
             live[count++] = i;
-            if (first < 0 || highs[i]! > highs[first]!) {
-              if (first >= 0) rest *= 1 - highs[first]!;
-              first = i;
-            } else rest *= 1 - highs[i]!;
+            if (first < 0 || highs[i]! > highs[first]!) first = i;
           }
         }
       }
       this.liveCount = count;
-      if (first >= 0) {
-        this.integrate(first);
-        // (the products in another order than update()'s: its widening covers any order)
-        const factor = 1 - this.lows[first]!;
-        SWEPT[0] = factor;
-        SWEPT[1] = rest * factor;
-      } else {
-        SWEPT[0] = 1;
-        SWEPT[1] = rest;
-      }
-      swept = true;
+      if (first >= 0) this.integrate(first);
       // the others wait for the next narrowing, if the one integrated first does not decide with these bounds
       this.sweepPending = true;
     } else if (this.sweepPending) {
