@@ -53,24 +53,11 @@ export class IndexHeap {
     const items = this.items;
     const top = items[0]!;
     const n = --this.count;
-    const last = items[n]!;
-    if (n > 0) {
-      let j = 0;
-      for (;;) {
-        const l = 2 * j + 1;
-        if (l >= n) break;
-        const r = l + 1;
-        const c = r < n && this.above(items[r]!, items[l]!) ? r : l;
-        if (!this.above(items[c]!, last)) break;
-        items[j] = items[c]!;
-        j = c;
-      }
-      items[j] = last;
-    }
+    if (n > 0) this.siftDown(0, items[n]!, n);
     return top;
   }
-  // fill's step: index i at slot j of the first n slots, the larger child moved up until i is above both its children
-  // (pop's loop; kept apart so the window search's pops stay as they were)
+  // pop's and fill's step: index i at slot j of the first n slots, the larger child moved up until i is above both its
+  // children
   private siftDown(j: number, i: number, n: number): void {
     const items = this.items;
     for (;;) {

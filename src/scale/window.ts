@@ -302,6 +302,8 @@ class WindowSearch {
   // hold at every exponent below, which the rest of the search visits
   private readonly overBudget: number[] = [];
   private readonly pair = new Float64Array(2);
+  // entryOf's [lo, hi]
+  private readonly entry = new Float64Array(2);
   // one tensor's bounds from overflowRiskQuickInto (takeQuick)
   private readonly quick = new Float64Array(2);
   // one tensor's rougher bounds [lower, upper] (takeRough)
@@ -537,22 +539,33 @@ class WindowSearch {
   // bounds, tighter upper bound or value taken there): what knownAfresh would find, without visiting the other tables
   // again (the same comparisons on the same doubles, which min and max take in any order)
   private knownWithHere(curve: Curve, i: number, here: Table, lo: number, hi: number): Float64Array {
-    const flags = here.flags[i] as number;
-    if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) !== 0) {
-      let a = -Infinity;
-      let b = Infinity;
-      if ((flags & HAS_VALUE) !== 0) a = b = here.data[4 * i + 3] as number;
-      else {
-        if ((flags & HAS_BOUNDS) !== 0) {
-          a = here.data[4 * i] as number;
-          b = here.data[4 * i + 1] as number;
-        }
-        if ((flags & HAS_UPPER) !== 0) b = Math.min(b, here.data[4 * i + 2] as number);
-      }
-      if (a > lo) lo = a;
-      if (b < hi) hi = b;
+    if (this.entryOf(here, i)) {
+      const entry = this.entry;
+      if ((entry[0] as number) > lo) lo = entry[0] as number;
+      if ((entry[1] as number) < hi) hi = entry[1] as number;
     }
     return this.keepKnown(i, here, lo, hi, ((curve === "overflow" ? this.overflowKnown : this.flushKnown).versions[i] as number) + 1);
+  }
+
+  // what table t itself holds of tensor i, as [lo, hi] into `entry` (its value; else its cheap bounds, the upper one
+  // tightened by its tighter upper bound); false where it holds none. Through `entry`, not returned: doubles returned
+  // from a call not inlined are heap numbers each
+  private entryOf(t: Table, i: number): boolean {
+    const flags = t.flags[i] as number;
+    if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) === 0) return false;
+    let a = -Infinity;
+    let b = Infinity;
+    if ((flags & HAS_VALUE) !== 0) a = b = t.data[4 * i + 3] as number;
+    else {
+      if ((flags & HAS_BOUNDS) !== 0) {
+        a = t.data[4 * i] as number;
+        b = t.data[4 * i + 1] as number;
+      }
+      if ((flags & HAS_UPPER) !== 0) b = Math.min(b, t.data[4 * i + 2] as number);
+    }
+    this.entry[0] = a;
+    this.entry[1] = b;
+    return true;
   }
 
   // what `known` found of tensor i at the table's exponent, kept with its knowledge's version plus 1, and returned in pair
@@ -591,18 +604,9 @@ class WindowSearch {
         bits ^= lowest;
         t = byBit[31 - Math.clz32(lowest)] as Table;
       } else t = sorted[j] as Table;
-      const flags = t.flags[i] as number;
-      if ((flags & (HAS_VALUE | HAS_BOUNDS | HAS_UPPER)) === 0) continue;
-      let a = -Infinity;
-      let b = Infinity;
-      if ((flags & HAS_VALUE) !== 0) a = b = t.data[4 * i + 3] as number;
-      else {
-        if ((flags & HAS_BOUNDS) !== 0) {
-          a = t.data[4 * i] as number;
-          b = t.data[4 * i + 1] as number;
-        }
-        if ((flags & HAS_UPPER) !== 0) b = Math.min(b, t.data[4 * i + 2] as number);
-      }
+      if (!this.entryOf(t, i)) continue;
+      const a = this.entry[0] as number;
+      const b = this.entry[1] as number;
       if (t.k === k) {
         if (a > lo) lo = a;
         if (b < hi) hi = b;

@@ -30,6 +30,11 @@ function directWindow(tensors: readonly ScaledTensorCurves[], o: WindowOptions) 
   return { lowestLog2: lowest, highestLog2: highest, upperEdgeSetBy: upper, lowerEdgeSetBy: lower };
 }
 
+// a window's edges and their setters, as directWindow gives them
+function edgesOf(w: ReturnType<typeof lossScaleWindow>) {
+  return { lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy };
+}
+
 const logistic = (x: number) => 1 / (1 + Math.exp(-x));
 
 interface Shape {
@@ -82,7 +87,7 @@ describe("lossScaleWindow searches", () => {
         const tensors = curves(shapes);
         const w = lossScaleWindow(tensors, OPTIONS);
         const d = directWindow(tensors, OPTIONS);
-        expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+        expect(edgesOf(w)).toEqual(d);
       }),
       { numRuns: 400 },
     );
@@ -102,7 +107,7 @@ describe("lossScaleWindow searches", () => {
           const w = windowOf(ids);
           if (rest.length === 0) continue;
           const d = directWindow(rest, OPTIONS);
-          expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+          expect(edgesOf(w)).toEqual(d);
           expect(w).toEqual(lossScaleWindow(rest, OPTIONS));
         }
       }),
@@ -125,14 +130,14 @@ describe("lossScaleWindow searches", () => {
           const windowOf = lossScaleWindows(tensors, OPTIONS);
           const whole = windowOf();
           const d = directWindow(tensors, OPTIONS);
-          expect({ lowestLog2: whole.lowestLog2, highestLog2: whole.highestLog2, upperEdgeSetBy: whole.upperEdgeSetBy, lowerEdgeSetBy: whole.lowerEdgeSetBy }).toEqual(d);
+          expect(edgesOf(whole)).toEqual(d);
           for (const aside of asides) {
             const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
             const rest = tensors.filter((t) => !ids.has(t.id));
             const w = windowOf(ids);
             if (rest.length === 0) continue;
             const r = directWindow(rest, OPTIONS);
-            expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(r);
+            expect(edgesOf(w)).toEqual(r);
           }
         },
       ),
@@ -156,7 +161,7 @@ describe("lossScaleWindow searches", () => {
     });
     const w = lossScaleWindow(tensors, OPTIONS);
     const d = directWindow(tensors, OPTIONS);
-    expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+    expect(edgesOf(w)).toEqual(d);
     // the most flush-prone tensor is the last one (its curve sits furthest right), the most overflow-prone the first
     expect([w.lowerEdgeSetBy, w.upperEdgeSetBy]).toEqual(["layer299", "layer0"]);
   });
@@ -186,7 +191,7 @@ describe("lossScaleWindow searches", () => {
           });
           const w = lossScaleWindow(tensors, OPTIONS);
           const d = directWindow(tensors, OPTIONS);
-          expect({ lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy }).toEqual(d);
+          expect(edgesOf(w)).toEqual(d);
         },
       ),
       { numRuns: 60 },
