@@ -484,6 +484,18 @@ export function forwardInto<S>(records: RuleRecords, output: Signal, factors: re
 }
 
 /**
+ * A rule's backward result written into one of the records' results (records.linearBackward, whose caller then sets
+ * its hazards, or records.pointwiseBackward): no inner gradients, as the rules that fill records have none.
+ */
+export function backwardInto(result: BackwardResult, input: Gradient, factors: readonly Factor[], weightGradients: BackwardResult["weightGradients"]): BackwardResult {
+  result.input = input;
+  result.factors = factors;
+  result.inner = NO_INNER_GRADIENTS;
+  result.weightGradients = weightGradients;
+  return result;
+}
+
+/**
  * linearForward's accumulation hazard written into the records (the same numbers as a new one): the products w·x of a
  * signal `input` whose second moment becomes `q` (hazardInput's fields), summed over `terms` per output element.
  */

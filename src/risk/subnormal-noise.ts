@@ -55,7 +55,7 @@ const LIMIT_ASKED = new Float64Array(3).fill(Number.NaN);
  * under {@link NOISE_FLOOR} (a density bound settles most tensors without computing it).
  */
 export function subnormalNoise(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): number {
-  if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return 0;
+  if (isEmpty(profile) || !hasNoiseBand(limits)) return 0;
   // where the bound does not settle the tensor, the noise itself (two shares, see tilted) costs about what a bound by
   // the energy below the smallest normal would
   if (noiseBound(profile, limits) < NOISE_FLOOR) return 0;
@@ -108,7 +108,7 @@ export function noiseAtMost(profile: MagnitudeProfile, limits: Pick<RangeLimits,
  * the square on each side of z*, where k·e^{−m·z} = 1).
  */
 export function noiseWithin(profile: MagnitudeProfile, limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">, target: number): boolean {
-  if (isEmpty(profile) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return true;
+  if (isEmpty(profile) || !hasNoiseBand(limits)) return true;
   const shape = profile.shape;
   if (shape !== "gaussian" && shape !== "half-gaussian" && shape !== "bounded") return noiseBound(profile, limits) <= target;
   const spread = profile.log2Spread;
@@ -126,7 +126,7 @@ export function gaussianNoiseWithin(
   limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">,
   target: number,
 ): boolean {
-  if (!(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return true;
+  if (!hasNoiseBand(limits)) return true;
   const h = limits.minNormal;
   // a bound under the smallest normal puts mass at the bound, inside the band: no density there
   if (bound > 0 && bound < h) return false;
@@ -142,6 +142,12 @@ export function gaussianNoiseWithin(
   return scale * (capped + tail) <= target;
 }
 const GAUSSIAN_DENSITY = Math.sqrt(2 / Math.PI);
+
+// whether the format keeps a band of subnormals to round into: values from the flush bound up to the smallest normal,
+// spaced by a smallest subnormal below it (IEEE 754-2019 §3.3); without one there is no subnormal noise
+function hasNoiseBand(limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">): boolean {
+  return limits.flushBound < limits.minNormal && limits.smallest < limits.minNormal;
+}
 
 /**
  * Whether the subnormal noise's draw integral is at least `target`, by a lower bound; false where it does not tell.
@@ -162,7 +168,7 @@ export function gaussianNoiseAbove(
   limits: Pick<RangeLimits, "flushBound" | "minNormal" | "smallest">,
   target: number,
 ): boolean {
-  if (!(m > 0) || !(limits.flushBound < limits.minNormal) || !(limits.smallest < limits.minNormal)) return false;
+  if (!(m > 0) || !hasNoiseBand(limits)) return false;
   const h = limits.minNormal;
   // the band's shares are the Gaussian's below a bound only: a bound under h caps elements inside it
   if (bound > 0 && bound < h) return false;

@@ -12,7 +12,7 @@ import { activationFunction } from "../../numeric/activations.js";
 import { INV_SQRT_2PI, normalCdf, normalPdf } from "../../numeric/normal.js";
 import { gaussianSoftmaxMoments } from "../../numeric/softmax.js";
 import { attentionRowSums } from "../attention/analytic.js";
-import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, crossCorrelationOf, diagonalPullback, forwardInto, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
+import { NO_FACTORS, NO_HAZARDS, NO_INNER, NO_INNER_GRADIENTS, NO_WEIGHT_GRADIENTS, SOURCES, backwardInto, crossCorrelationOf, diagonalPullback, forwardInto, eulerShare, factor, fmt, gradientSum, limitTangent, meanPairCorrelation, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf } from "../common.js";
 import type { Text, AnalyticRule, BackwardResult, ForwardResult, Gradient, OpContext, OpElementShape, Signal } from "../types.js";
 import { backwardUnitKappa, forwardUnitKappa } from "../unit-pairs.js";
 import { activationMoments, backwardKappa, forwardKappa, transientMoments } from "./moments.js";
@@ -830,14 +830,7 @@ export const activationRule: AnalyticRule<ActivationStash> = {
       gradient.homogeneousSum = gradientSum(ctx.batch, positionCount(layer.output), output, stash.output) + eulerShare(output, layer);
     }
     const records = ctx.ruleRecords;
-    if (records !== undefined) {
-      const result = records.pointwiseBackward;
-      result.input = gradient;
-      result.factors = factors;
-      result.inner = NO_INNER_GRADIENTS;
-      result.weightGradients = NO_WEIGHT_GRADIENTS;
-      return result;
-    }
+    if (records !== undefined) return backwardInto(records.pointwiseBackward, gradient, factors, NO_WEIGHT_GRADIENTS);
     return { input: gradient, factors, inner: NO_INNER_GRADIENTS, weightGradients: NO_WEIGHT_GRADIENTS };
   },
 };

@@ -5,7 +5,7 @@
  */
 import { positionCount, sampleElements } from "../../graph/shape.js";
 import type { GraphLayer } from "../../graph/types.js";
-import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, accumulationInto, betweenBatches, forwardInto, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, linearSumsInto, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
+import { LINEAR_KAPPA, NO_FACTORS, NO_INNER, NO_INNER_GRADIENTS, SOURCES, accumulationInto, backwardInto, betweenBatches, forwardInto, correlatedSum, crossCorrelationOf, factor, fmt, hazardInput, keepMarks, linearGradient, linearOutput, linearSumsInto, maybeWeight, pairCorrelationsInto, positionCorrelationOf, sampleCorrelationOf, sharedOf, transposedHazard, weightOf, weightSumHazard, CountWords } from "../common.js";
 import { linearUnitKappa, unitPairs } from "../unit-pairs.js";
 import { mappedExcess, sequenceExcessOf } from "../sequence-excess.js";
 import type { Text, AnalyticRule, BackwardResult, Curvature, ForwardResult, Gradient, OpContext, Signal, UnitPairs, WeightGradientMoment } from "../types.js";
@@ -369,11 +369,7 @@ export function linearBackward(
       : [weightSumHazard(ctx.details, w, "weight-gradient", x, output, terms), transposedHazard(ctx.details, variance, output, w.fanOut, input, ctx.batch * sampleElements(layer.input), "input", what)];
   const factors = ctx.ledger ? (selfRatio !== 1 ? [factor(gain, rule, SOURCES.backward), factor(selfRatio, SELF_RULE, SELF_SOURCE)] : [factor(gain, rule, SOURCES.backward)]) : NO_FACTORS;
   if (records !== undefined) {
-    const result = records.linearBackward;
-    result.input = input;
-    result.factors = factors;
-    result.inner = NO_INNER_GRADIENTS;
-    result.weightGradients = weightGradients;
+    const result = backwardInto(records.linearBackward, input, factors, weightGradients);
     result.hazards = hazards;
     return result;
   }
