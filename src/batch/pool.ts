@@ -29,6 +29,8 @@ export interface PoolOptions {
   chunk?: number;
   /** called as each task settles, in finishing order (for progress bars) */
   onSettled?: (index: number, outcome: TaskOutcome<unknown>) => void;
+  /** each worker's young generation in MB (Worker `resourceLimits.maxYoungGenerationSizeMb`); default V8's */
+  youngGenerationMb?: number;
 }
 
 /** Messages between the pool and a worker: first the shared cell, then chunks of tasks. */
@@ -69,6 +71,8 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
   const workers = poolWorkers(options.workers, tasks.length);
   const inFlight = positiveInteger("inFlight", options.inFlight ?? 2);
   const most = positiveInteger("chunk", options.chunk ?? 8);
+  const young = options.youngGenerationMb === undefined ? undefined : positiveInteger("youngGenerationMb", options.youngGenerationMb);
+  const workerOptions = young === undefined ? { workerData: options.workerData } : { workerData: options.workerData, resourceLimits: { maxYoungGenerationSizeMb: young } };
   const outcomes: (TaskOutcome<R> | undefined)[] = new Array(tasks.length);
   if (tasks.length === 0) return [];
 
@@ -102,7 +106,7 @@ export async function runPool<T, R>(workerUrl: URL, tasks: readonly T[], options
     const remaining = (): boolean => requeued.length > 0 || next < tasks.length;
 
     const start = (): void => {
-      const worker = new Worker(workerUrl, { workerData: options.workerData });
+      const worker = new Worker(workerUrl, workerOptions);
       live.add(worker);
       // the id + 1 of the task the worker is running, 0 between tasks (written by serveTasks)
       const running = new Int32Array(new SharedArrayBuffer(4));

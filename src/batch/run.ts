@@ -3,7 +3,7 @@
  */
 import type { BatchInput } from "./paths.js";
 import { poolWorkers, runPool, type TaskOutcome } from "./pool.js";
-import { tuneTieringForBatch } from "./tiering.js";
+import { batchYoungGenerationMb, tuneTieringForBatch } from "./tiering.js";
 import type { SpecTask, TaskResult } from "./evaluate.js";
 import { oneProblem, type BatchRow } from "./types.js";
 import type { Variant } from "./vary.js";
@@ -18,6 +18,12 @@ export interface RunBatchOptions {
   workerData?: unknown;
   /** called once per finished row, in finishing order */
   onRow?: (done: number, total: number) => void;
+}
+
+// each worker's young generation, unless the user sized V8's (src/batch/tiering.ts)
+function youngGeneration(): { youngGenerationMb?: number } {
+  const mb = batchYoungGenerationMb(process.execArgv, process.env.NODE_OPTIONS);
+  return mb === undefined ? {} : { youngGenerationMb: mb };
 }
 
 /** The default worker: dist/batch/worker.js, next to this module once built. */
@@ -71,6 +77,7 @@ export async function runBatch(inputs: readonly BatchInput[], variants: readonly
     outcomes = await runPool<SpecTask, TaskResult>(options.workerUrl ?? DEFAULT_WORKER_URL, tasks, {
       ...(options.workers !== undefined ? { workers: options.workers } : {}),
       workerData: options.workerData,
+      ...youngGeneration(),
       onSettled: () => {
         done += 1;
         options.onRow?.(done, plan.length);

@@ -1,12 +1,13 @@
 import { describe, expect, test } from "vitest";
 import { availableParallelism } from "node:os";
+import { Worker } from "node:worker_threads";
 import { poolWorkers, runPool, type TaskOutcome } from "../../src/batch/pool.js";
 
 // The pool starts real worker threads; the fixture imports serveTasks from dist/ (npm run build first).
 const WORKER = new URL("./fixtures/test-worker.mjs", import.meta.url);
 const BROKEN = new URL("./fixtures/broken-worker.mjs", import.meta.url);
 
-type Task = { kind: "square" | "throw" | "exit" | "wait" | "later"; n: number; ms?: number };
+type Task = { kind: "square" | "throw" | "exit" | "wait" | "later" | "limits"; n: number; ms?: number };
 
 describe("runPool", () => {
   test("returns outcomes in input order even when later tasks finish first", async () => {
@@ -72,6 +73,21 @@ describe("runPool", () => {
   test("passes workerData to every worker", async () => {
     const outcomes = await runPool<Task, { offset: number }>(WORKER, [{ kind: "square", n: 1 }], { workerData: { offset: 5 } });
     expect(outcomes).toEqual([{ ok: true, value: { n: 1, square: 1, offset: 5 } }]);
+  });
+
+  test("gives every worker the young generation asked for, and V8's own size when none is asked", async () => {
+    // Node's Worker resourceLimits: a worker reads its own limits from node:worker_threads
+    const tasks: Task[] = Array.from({ length: 4 }, (_, i): Task => ({ kind: "limits", n: i }));
+    const sized = await runPool<Task, { young: number }>(WORKER, tasks, { workers: 2, chunk: 1, youngGenerationMb: 192 });
+    expect(sized).toEqual(tasks.map(() => ({ ok: true, value: { young: 192 } })));
+    const plain = await runPool<Task, { young: number }>(WORKER, tasks.slice(0, 1), { workers: 1 });
+    // what a worker started with no limits reports (Node 20 on 64-bit: 48, three 16 MB semi-spaces)
+    const v8Default = await new Promise((resolve) => {
+      const worker = new Worker("require('node:worker_threads').parentPort.postMessage(require('node:worker_threads').resourceLimits.maxYoungGenerationSizeMb)", { eval: true });
+      worker.once("message", (young) => void worker.terminate().then(() => resolve(young)));
+    });
+    expect(plain).toEqual([{ ok: true, value: { young: v8Default } }]);
+    await expect(runPool(WORKER, tasks, { youngGenerationMb: 0 })).rejects.toThrow(RangeError);
   });
 
   test("a worker script that cannot start fails every task instead of crashing or looping", async () => {

@@ -5,7 +5,7 @@ const { flagsSet } = vi.hoisted(() => ({ flagsSet: [] as string[] }));
 vi.mock("node:v8", () => ({ setFlagsFromString: (flags: string) => void flagsSet.push(flags) }));
 vi.mock("node:os", () => ({ availableParallelism: () => 2 }));
 
-import { BATCH_V8_FLAGS, batchFlagsToSet, tuneTieringForBatch } from "../../src/batch/tiering.js";
+import { BATCH_V8_FLAGS, BATCH_YOUNG_GENERATION_MB, batchFlagsToSet, batchYoungGenerationMb, tuneTieringForBatch } from "../../src/batch/tiering.js";
 
 const names = (flags: readonly { name: string }[]): string[] => flags.map((flag) => flag.name);
 const ALL = names(BATCH_V8_FLAGS);
@@ -30,6 +30,16 @@ describe("batchFlagsToSet", () => {
 
   test("a flag that only starts like a batch flag is another flag", () => {
     expect(names(batchFlagsToSet(2, 2, "11.3", ["--max-inlined-bytecode-size=100"]))).toEqual(ALL);
+  });
+});
+
+describe("batchYoungGenerationMb", () => {
+  test("sizes the workers' young generation unless the process was started with a young-generation flag", () => {
+    expect(batchYoungGenerationMb([], "")).toBe(BATCH_YOUNG_GENERATION_MB);
+    expect(batchYoungGenerationMb(["--enable-source-maps"], "--max-old-space-size=4096")).toBe(BATCH_YOUNG_GENERATION_MB);
+    expect(batchYoungGenerationMb(["--max-semi-space-size=8"])).toBeUndefined();
+    expect(batchYoungGenerationMb([], "--trace-gc --max_semi_space_size=64")).toBeUndefined();
+    expect(batchYoungGenerationMb(["--min-semi-space-size=4"])).toBeUndefined();
   });
 });
 
