@@ -69,6 +69,35 @@ function levelDensity(v: number, n: number): number {
   return n * Math.exp((n - 1) * Math.log1p(-p)) * 0.7978845608028654 * a * Math.LN2 * Math.exp(-0.5 * a * a);
 }
 
+/**
+ * The last node j of the moments' quadrature (v = from + j·step) up to which levelDensity is exactly 0 at every node,
+ * −1 where that is not shown. V's lower tail is n·(1 − P)^{n−1}·…, whose factor e^{(n−1)·ln(1 − P)} underflows to 0
+ * (Math.exp of anything below −745.14 is 0, IEEE 754-2019 binary64's least subnormal being 2^−1074) over most of the
+ * range for a large n: there the density is exactly 0. 1 − P rises with v, and the computed 1 − P (the fast erfc's
+ * P within 1.2e-7 of P relative, src/risk/_math.ts; its argument's rounding far less) lies within 1.3e-7 of the exact
+ * one at every node; so every node at or below a node j with (n − 1)·ln(computed 1 − P + 3e-7) < −746 (with room for
+ * the logarithm's and the product's rounding) has a computed exponent below −746 too, and a density of exactly 0. The
+ * largest such j is found by bisection, each step one evaluation of P, in place of the density at every node below it
+ * (exported for tests).
+ */
+export function zeroBelow(from: number, step: number, count: number, n: number): number {
+  const zero = (j: number): boolean => {
+    const a = 2 ** (from + j * step);
+    const p = erfc(a / Math.SQRT2);
+    return (n - 1) * Math.log(1 - p + 3e-7) * (1 - 1e-12) < -746;
+  };
+  if (!zero(0)) return -1;
+  // zero(lo) holds; zero(hi) does not, or hi is past the last node
+  let lo = 0;
+  let hi = count + 1;
+  while (hi - lo > 1) {
+    const mid = (lo + hi) >> 1;
+    if (zero(mid)) lo = mid;
+    else hi = mid;
+  }
+  return lo;
+}
+
 /** The moments of V for the grid count e^{k/PER_LN}, computed on first use (exported for tests). */
 export function levelMoments(k: number): LevelMoments {
   let m = MOMENTS.get(k);
@@ -80,9 +109,12 @@ export function levelMoments(k: number): LevelMoments {
   const step = 1 / STEPS;
   const values = new Float64Array(count + 1);
   const weights = new Float64Array(count + 1);
+  // the nodes below `start` have a density of exactly 0 (zeroBelow): they add +0 or −0 to every sum, which leaves it
+  // as it is, so the sums start there
+  const start = zeroBelow(from, step, count, n) + 1;
   let mass = 0;
   let first = 0;
-  for (let j = 0; j <= count; j++) {
+  for (let j = start; j <= count; j++) {
     values[j] = levelDensity(from + j * step, n);
     weights[j] = ((j === 0 || j === count ? 1 : j % 2 === 1 ? 4 : 2) * step) / 3;
     mass += (weights[j] as number) * (values[j] as number);
@@ -91,7 +123,7 @@ export function levelMoments(k: number): LevelMoments {
   const mean = first / mass;
   let variance = 0;
   let third = 0;
-  for (let j = 0; j <= count; j++) {
+  for (let j = start; j <= count; j++) {
     const e = from + j * step - mean;
     const w = (weights[j] as number) * (values[j] as number);
     variance += w * e * e;
@@ -106,7 +138,7 @@ export function levelMoments(k: number): LevelMoments {
   edges[edges.length - 1] = Infinity;
   const fourths = new Float64Array(edges.length - 1);
   let shell = 0;
-  for (let j = 0; j <= count; j++) {
+  for (let j = start; j <= count; j++) {
     const e = from + j * step - mean;
     while (e > (edges[shell + 1] as number)) shell++;
     fourths[shell] = (fourths[shell] as number) + ((weights[j] as number) * (values[j] as number) * e * e * e * e) / mass;

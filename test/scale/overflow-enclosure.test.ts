@@ -9,7 +9,8 @@ import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { erfc as preciseErfc } from "../../src/numeric/normal.js";
 import { directLawOverDraws } from "../../src/risk/laws.js";
 import { probabilityAnyAbove } from "../../src/risk/index.js";
-import { anyAboveEnclosure, enclosureApplies, levelMoments, shiftBounds, shiftLevels } from "../../src/scale/overflow-enclosure.js";
+import { erfc } from "../../src/risk/_math.js";
+import { anyAboveEnclosure, enclosureApplies, levelMoments, shiftBounds, shiftLevels, zeroBelow } from "../../src/scale/overflow-enclosure.js";
 
 const SHAPES = ["gaussian", "half-gaussian", "bounded"] as const;
 
@@ -150,6 +151,29 @@ describe("levelMoments", () => {
       expect(Math.abs(m.variance - variance) / variance).toBeLessThan(1e-4);
       expect(Math.abs(m.third - third)).toBeLessThan(1e-3 * Math.abs(third));
     }
+  });
+
+  it("leave out of their quadrature only nodes whose density, as computed, is exactly 0", () => {
+    // the density of V at v, n·(1 − P)^{n−1}·√(2/π)·a·ln 2·e^{−a²/2} with a = 2^v and P = erfc(a/√2) (the fast erfc the
+    // moments take): its factor e^{(n−1)·ln(1 − P)} underflows to 0 below e^{−745.13}, half of binary64's least
+    // subnormal 2^−1074 (IEEE 754-2019 §3.3), over the lower part of the range for a large count
+    let skipped = 0;
+    for (let k = Math.round(Math.log(16) * 256); k <= Math.round(Math.log(2 ** 53) * 256); k += 37) {
+      const n = Math.exp(k / 256);
+      // the quadrature's nodes as levelMoments lays them: from c − 8 to c + 3 binades in steps of 1/256, c = log2 √(2 ln n)
+      const from = Math.log2(Math.sqrt(2 * Math.log(n))) - 8;
+      const step = 1 / 256;
+      const last = zeroBelow(from, step, 11 * 256, n);
+      for (let j = 0; j <= last; j++) {
+        const a = 2 ** (from + j * step);
+        const p = erfc(a / Math.SQRT2);
+        const density = p >= 1 ? 0 : n * Math.exp((n - 1) * Math.log1p(-p)) * Math.sqrt(2 / Math.PI) * a * Math.LN2 * Math.exp(-0.5 * a * a);
+        expect(density).toBe(0);
+      }
+      skipped += last + 1;
+    }
+    // over most of the range for the larger counts: the checks above are not vacuous
+    expect(skipped).toBeGreaterThan(100_000);
   });
 });
 
