@@ -998,9 +998,18 @@ function sumFarBelow(profile: MagnitudeProfile, level: number, terms: number): b
   // the scale at the largest draw, a little high against the rounding of the rule's own factors and of exp2's (within
   // (|x| + 1)·2^-52 relative of `2 **`, src/risk/_math.ts: under 1e-13 for spreads to 100 binades); where the test could
   // tell the two apart, the partial sums sit 40 standard deviations away and the sum gives 0 too
-  const top = profile.rms * exp2(Math.max(0, profile.log2Spread) * DRAW_LIMIT) * (1 + 1e-9);
-  return level / (Math.sqrt(terms) * top) > 40;
+  const y = Math.max(0, profile.log2Spread) * DRAW_LIMIT;
+  const root = Math.sqrt(terms);
+  // first with 2^(⌈y⌉+1) for exp2(y), which it passes, without the exponential: where the level is far enough below
+  // even so, it is below the scale exp2 gives too (every rounding here is monotone)
+  const j = Math.ceil(y) + 1;
+  if (j < POW2_ABOVE.length && level / (root * (profile.rms * (POW2_ABOVE[j] as number) * (1 + 1e-9))) > 40) return true;
+  const top = profile.rms * exp2(y) * (1 + 1e-9);
+  return level / (root * top) > 40;
 }
+// 2^j for j = 0 … 1023, each doubled from the one before (exact)
+const POW2_ABOVE = new Float64Array(1024);
+for (let j = 0, power = 1; j < POW2_ABOVE.length; j++, power *= 2) POW2_ABOVE[j] = power;
 
 // The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction); held in
 // the activation and the accumulate format as the sum of squares above. In an 8-bit format of a plan with scale
@@ -1373,14 +1382,37 @@ function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: num
     AT_MOST[at + 2] = (k - 1) * LN2;
   }
   const far = AT_MOST[at] as number;
-  const u = (t / profile.rms) * Math.exp(-m * far);
+  const x = m * far;
+  const c = AT_MOST[at + 2] as number;
+  // First without an exponential or a logarithm, where that already decides (most sums of a weighed scale sit binades
+  // below the level): below is at most 0, ln n at most LN_COUNT_CAP, and u at least floorU's, each as computed (every
+  // rounding below is monotone), so the sum tested below is at most the one tested here
+  if (n <= COUNT_CAP) {
+    const least = floorU(t / profile.rms, x);
+    if (LN_COUNT_CAP - (least * least) / 2 <= c) return true;
+  }
+  const u = (t / profile.rms) * Math.exp(-x);
   const rate = m * u * u - far;
   const below = rate > 0 ? Math.min(0, (AT_MOST[at + 1] as number) - Math.log(rate)) : 0;
   if (n !== atMostN) {
     atMostN = n;
     atMostLogN = Math.log(n);
   }
-  return atMostLogN - (u * u) / 2 + below <= (AT_MOST[at + 2] as number);
+  return atMostLogN - (u * u) / 2 + below <= c;
+}
+
+// ln n is at most LN_COUNT_CAP for n up to COUNT_CAP: ln 2^53 = 36.74 (Math.log within an ulp of it)
+const COUNT_CAP = 2 ** 53;
+const LN_COUNT_CAP = 37;
+// 2^−j for j = 0 … 1074, each halved from the one before (exact down to the smallest subnormal), 0 past them
+const POW2_BELOW = new Float64Array(1075);
+for (let j = 0, power = 1; j < POW2_BELOW.length; j++, power /= 2) POW2_BELOW[j] = power;
+// a lower bound on a·e^{−x} as anyAboveBounded computes it ((a)·Math.exp(−x), x ≥ 0): 2^−j with j = ⌈x·log2 e⌉ + 1 is
+// at most e^{−x}/2 (the ceiling and the rounding of x·log2 e move j by less than 1 binade), below Math.exp(−x), which
+// is within an ulp of e^{−x} (fdlibm's exp, from memory); a product of a with the smaller factor rounds to no more
+function floorU(a: number, x: number): number {
+  const j = Math.ceil(x * Math.LOG2E) + 1;
+  return a * (j < POW2_BELOW.length ? (POW2_BELOW[j] as number) : 0);
 }
 // the last p and n anyAboveBounded was asked with, the row of p's binade and ln n
 let atMostP = Number.NaN;
