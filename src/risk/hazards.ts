@@ -92,6 +92,8 @@ class Draft {
   hasCritical = false;
   kind: FindingKind = "accumulation-error";
   verdict: Verdict = "fits";
+  /** the verdict's rank (VERDICT_RANK), written with it: isWorse compares two numbers, not two look-ups by name */
+  rank = 0;
   threshold = Number.NaN;
   wording = 0;
   /** the one number the sentence needs beyond the evaluation (an rms, the optimizer epsilon) */
@@ -170,12 +172,15 @@ function putGraded(
   const atRisk = GRADE[AT_RISK] as number;
   const fails = GRADE[FAILS] as number;
   let verdict: Verdict = "fits";
+  let rank = 0;
   let threshold = 0;
   if (value > fails) {
     verdict = capAtRisk ? "at-risk" : "fails";
+    rank = capAtRisk ? 1 : 2;
     threshold = capAtRisk ? atRisk : fails;
   } else if (value > atRisk) {
     verdict = "at-risk";
+    rank = 1;
     threshold = atRisk;
   }
   // fill's fields written here: its numbers passed would be boxed again
@@ -189,6 +194,7 @@ function putGraded(
   draft.hasCritical = critical === critical;
   draft.kind = kind;
   draft.verdict = verdict;
+  draft.rank = rank;
   draft.threshold = threshold;
   draft.wording = wording;
   draft.extra = GRADE[EXTRA] as number;
@@ -224,6 +230,7 @@ function fill(
   draft.hasCritical = critical !== null;
   draft.kind = kind;
   draft.verdict = verdict;
+  draft.rank = VERDICT_RANK[verdict];
   draft.threshold = threshold;
   draft.wording = wording;
   draft.extra = extra;
@@ -437,7 +444,7 @@ const FINDINGS: Finding[] = [];
 const NONE = Object.freeze([]) as never[];
 
 function isWorse(a: Draft, b: Draft): boolean {
-  const rank = VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict];
+  const rank = a.rank - b.rank;
   return rank > 0 || (rank === 0 && a.value > b.value);
 }
 
