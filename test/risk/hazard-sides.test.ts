@@ -5,7 +5,7 @@ import { evaluateHazard, plainNumber, type HazardContext, type HazardEvaluation 
 import { anyAboveAtMost } from "../../src/risk/hazards.js";
 import { nonzeroElements, probabilityAnyAbove } from "../../src/risk/profile.js";
 import { settledAnyAbove } from "../../src/risk/settle.js";
-import { normalSf } from "../../src/numeric/normal.js";
+import { normalLogPdf, normalSf, normalUpperQuantile } from "../../src/numeric/normal.js";
 import { probabilityWords, sharePercent } from "../../src/risk/words.js";
 import { BFLOAT16_FTZ, BINARY16, BINARY32, E4M3_NAN, E4M3_SATURATING, E5M2 } from "./limits.js";
 import { context, profile, site } from "./hazard-sites.js";
@@ -258,6 +258,54 @@ describe("a start that cannot fail beside an end that fails", () => {
       { numRuns: 400 },
     );
     expect(said).toBeGreaterThan(100);
+  });
+
+  // anyAboveAtMost first tries its bound without an exponential or a logarithm (u from below by a power of two, ln n
+  // from above by ln 2^53); that may only save work: its answer must be the closed form's in its comment, written out
+  // here as a reference (own algebra: union and Chernoff bounds, common practice), for thresholds from within the draws'
+  // reach to astronomically far, where most of both answers are taken
+  it("answers as its closed form does, with or without the quick test (property)", () => {
+    // z₀ for p: a little past the normal quantile of 2^k/2, 2^k ≤ p
+    const farFor = (p: number): { far: number; k: number } => {
+      let k = Math.floor(Math.log2(p));
+      if (2 ** k > p) k--;
+      return { far: normalUpperQuantile(2 ** (k - 1)) + 1e-3, k };
+    };
+    const reference = (drawn: MagnitudeProfile, t: number, n: number, p: number): boolean => {
+      if (!(p >= 1e-9 && p < 1)) return false;
+      const { far, k } = farFor(p);
+      const m = drawn.log2Spread > 0 ? drawn.log2Spread * Math.LN2 : 0;
+      const u = (t / drawn.rms) * Math.exp(-m * far);
+      const rate = m * u * u - far;
+      const below = rate > 0 ? Math.min(0, normalLogPdf(far) - Math.log(rate)) : 0;
+      return Math.log(n) - (u * u) / 2 + below <= (k - 1) * Math.LN2;
+    };
+    let yes = 0;
+    let no = 0;
+    fc.assert(
+      fc.property(
+        // u₀, the threshold in units of the scale drawn at z₀: mostly near where the answer turns (u₀²/2 about ln n
+        // less ln(2^k/2), up to 60 for n = 2^50 and p = 1e-9), else anywhere up to 2^1000 of the scale
+        fc.oneof(fc.double({ min: 0.1, max: 13, noNaN: true }), fc.double({ min: -3, max: 1000, noNaN: true })),
+        fc.boolean(),
+        fc.oneof(fc.constant(0), fc.double({ min: 0.01, max: 12, noNaN: true })),
+        fc.double({ min: 0, max: 50, noNaN: true }),
+        fc.constantFrom(1e-9, 3e-9, 1e-6, 5e-7, 5e-4, 0.01, 0.3, 0.99),
+        (x, nearTurn, log2Spread, log2Count, p) => {
+          const drawn = profile({ rms: 2 ** -20, log2Spread, elements: 2 ** 50 });
+          const m = log2Spread * Math.LN2;
+          const t = nearTurn ? 2 ** -20 * x * x * Math.exp(m * farFor(p).far) : 2 ** (x - 20);
+          const n = 2 ** log2Count;
+          const said = anyAboveAtMost(drawn, t, n, p);
+          expect(said).toBe(reference(drawn, t, n, p));
+          if (said) yes++;
+          else no++;
+        },
+      ),
+      { numRuns: 3000 },
+    );
+    expect(yes).toBeGreaterThan(500);
+    expect(no).toBeGreaterThan(500);
   });
 
   // A weighed scale's summed weight gradient of the 1,000-layer network: 2^18 below binary16's overflow level (2^16,
