@@ -11,6 +11,8 @@ export default defineConfig({
     testTimeout: 60_000,
     hookTimeout: 120_000,
     env: { FORCE_COLOR: "0", NO_COLOR: "1" },
+    // the built library is loaded by Node itself, not rewritten by vitest's module runner (bench/built.ts says why)
+    server: { deps: { external: [/\/node_modules\//, /\/dist\//] } },
   },
   bench: {
     include: ["bench/**/*.bench.ts"],

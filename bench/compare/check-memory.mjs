@@ -12,7 +12,7 @@
 import { Session } from "node:inspector/promises";
 import { constants, PerformanceObserver } from "node:perf_hooks";
 import { fileURLToPath } from "node:url";
-import { alternating, child, loadBuild, options } from "./measure.mjs";
+import { alternating, child, loadBuild, options, WARM_UP_CHECKS } from "./measure.mjs";
 import { mlpSpec } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
@@ -24,7 +24,7 @@ function variants(calls, growth, round) {
     spec.training.horizon.weightGrowth = growth;
     return spec;
   };
-  return { warm: [500, 501, 502].map(variant), specs: Array.from({ length: calls }, (_, i) => variant(i + 1)) };
+  return { warm: Array.from({ length: WARM_UP_CHECKS }, (_, i) => variant(500 + i)), specs: Array.from({ length: calls }, (_, i) => variant(i + 1)) };
 }
 
 // the sampled profile's bytes, summed over its call tree

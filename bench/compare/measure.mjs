@@ -13,6 +13,13 @@ export function threadMs() {
   return Number(readFileSync("/proc/thread-self/schedstat", "utf8").split(" ")[0]) / 1e6;
 }
 
+/**
+ * Checks of the 1,000-layer spec a process runs before any is measured. Its first calls run partly unoptimised code:
+ * thread time per check in blocks of 15 fresh variants went 74.9 / 47.4 / 42.6 / 33.2 / 32.3 / 32.9 ms (Dec 2026), so
+ * about 40 calls pass before V8 has compiled what a check runs hot; the first call alone is bench/cold-check.bench.ts's.
+ */
+export const WARM_UP_CHECKS = 40;
+
 /** A build's check module and spec reader, from its dist folder. */
 export async function loadBuild(dist) {
   const root = resolve(dist);
