@@ -5,7 +5,10 @@
  */
 import { f16round } from "@petamoriken/float16";
 import { bench, describe } from "vitest";
-import { FORMATS, countClasses, roundArray } from "../src/formats/index.js";
+import { built } from "./built.js";
+
+// the built library, loaded as a user's program loads it (bench/built.ts)
+const { FORMATS, countClasses, roundArray } = await built<typeof import("../src/formats/index.js")>("formats/index.js");
 
 // 65,536 elements per call (512 KiB per binary64 array): short calls are rarely interrupted on a shared machine,
 // and the arrays stay in cache, so the figures measure the kernels rather than memory bandwidth

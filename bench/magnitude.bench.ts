@@ -6,12 +6,15 @@
  */
 import { readFileSync, readdirSync } from "node:fs";
 import { bench, describe } from "vitest";
-import { buildGraph } from "../src/graph/index.js";
+import { built } from "./built.js";
 import type { Graph } from "../src/graph/index.js";
-import { predict } from "../src/magnitude/index.js";
-import { parseSpec } from "../src/spec/index.js";
 import type { LayerSpec, NetworkSpec } from "../src/spec/types.js";
 import { base, mlpSpec } from "./generated-specs.js";
+
+// the built library, loaded as a user's program loads it (bench/built.ts)
+const { buildGraph } = await built<typeof import("../src/graph/index.js")>("graph/index.js");
+const { predict } = await built<typeof import("../src/magnitude/index.js")>("magnitude/index.js");
+const { parseSpec } = await built<typeof import("../src/spec/index.js")>("spec/index.js");
 
 function transformerSpec(): NetworkSpec {
   const init = { kind: "normal", std: 0.02, gain: 1 } as const;

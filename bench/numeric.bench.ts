@@ -1,6 +1,9 @@
 import { bench, describe } from "vitest";
-import { activationMoments, criticalWeightVariance, expectedMaxAbsNormal } from "../src/numeric/index.js";
+import { built } from "./built.js";
 import type { ElementwiseActivationName } from "../src/numeric/index.js";
+
+// the built library, loaded as a user's program loads it (bench/built.ts)
+const { activationMoments, criticalWeightVariance, expectedMaxAbsNormal } = await built<typeof import("../src/numeric/index.js")>("numeric/index.js");
 
 // Cost of the activation moments the magnitude engine asks for per layer. Every call below uses a q never
 // seen before (the memo cannot help), as in a deep network whose q drifts from layer to layer.

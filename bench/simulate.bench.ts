@@ -6,8 +6,11 @@
  */
 import { loadavg } from "node:os";
 import { bench, describe } from "vitest";
-import { matmul, matmulTransposeA, matmulTransposeB } from "../src/numeric/matmul.js";
-import { createRandom } from "../src/numeric/random.js";
+import { built } from "./built.js";
+
+// the built library, loaded as a user's program loads it (bench/built.ts)
+const { matmul, matmulTransposeA, matmulTransposeB } = await built<typeof import("../src/numeric/matmul.js")>("numeric/matmul.js");
+const { createRandom } = await built<typeof import("../src/numeric/random.js")>("numeric/random.js");
 
 const BLOCKS = 48;
 const WIDTH = 256;

@@ -1,7 +1,10 @@
 import { readFileSync } from "node:fs";
 import { bench, describe } from "vitest";
 import { LineCounter, parseDocument } from "yaml";
-import { parseSpec } from "../src/spec/index.js";
+import { built } from "./built.js";
+
+// the built library, loaded as a user's program loads it (bench/built.ts)
+const { parseSpec } = await built<typeof import("../src/spec/index.js")>("spec/index.js");
 
 // Loading a spec: the baseline is the yaml library alone (parse with positions, convert to plain data);
 // parseSpec adds validation, the cross-key checks and normalization. Read the ratio of the means.
