@@ -14,9 +14,9 @@ const { parseSpec } = await built<typeof import("../src/spec/index.js")>("spec/i
 
 // The core check call (graph, prediction, risk, hazards, verdicts, loss-scale answer, optimizer) of the built library
 // on every example spec and on a generated 1,000-layer spec; parsing is done outside the timed region. Milliseconds
-// per spec: read the "mean" column. Goal (issue): under 20 ms for 1,000 layers. The risk module keeps the quantile levels and draw
-// integrals of profiles it has seen (src/risk/profile.ts), so repeated calls on one spec run warm, as a batch of
-// varied specs partly does; "a new variant each call" measures a spec the process has not seen.
+// per spec: read the "mean" column. Goal (issue): under 20 ms for 1,000 layers. The risk module keeps the quantile
+// levels and draw integrals of profiles it has seen (src/risk/profile.ts), so repeated calls on one spec run warm, as a
+// batch of varied specs partly does; "a new variant each call" measures a spec the process has not seen.
 const specs: [string, NetworkSpec][] = readdirSync("specs")
   .filter((name) => /\.ya?ml$/.test(name))
   .sort()
@@ -44,9 +44,9 @@ const STEADY = { iterations: 10, time: 0, warmupIterations: 40, warmupTime: 0 };
 
 describe("1,000-layer dense + ReLU spec", () => {
   const spec = mlpSpec();
-  const built = buildGraph(spec);
-  if (!built.ok) throw new Error("the generated spec does not build");
-  const graph = built.graph;
+  const network = buildGraph(spec);
+  if (!network.ok) throw new Error("the generated spec does not build");
+  const graph = network.graph;
   bench("predict alone", () => {
     if (predict(graph, spec).tensors.length === 0) throw new Error("no tensors");
   });

@@ -2,9 +2,10 @@
 /**
  * Processor time per fresh check of the 1,000-layer spec, two builds alternating in the same minutes:
  *   node bench/compare/check-time.mjs BASE_DIST NEW_DIST [--rounds 8] [--calls 15] [--growth 1.1]
- * Each round runs each build in its own process: WARM_UP_CHECKS warm-up checks (measure.mjs), then `calls` variants no earlier call has seen
- * (input scale moved by 2^-20 each), their thread processor time summed and divided. `--growth 1` checks the network
- * with weights that do not grow over the horizon, whose loss-scale pick is weighed (check.bench.ts says why).
+ * Each round runs each build in its own process: WARM_UP_CHECKS warm-up checks (measure.mjs), then `calls` variants
+ * no earlier call has seen (input scale moved by 2^-20 each), their thread processor time summed and divided.
+ * `--growth 1` checks the network with weights that do not grow over the horizon, whose loss-scale pick is weighed
+ * (check.bench.ts says why).
  * Prints each round's milliseconds per check and the ratio NEW/BASE of the sums. This machine's speed moves by
  * ±20–30% from minute to minute: read the ratio over many rounds, not one round's figures.
  */
