@@ -104,6 +104,23 @@ export function energyBelowUpper(profile: MagnitudeProfile, t: number): number {
   }
   return segmentBound(profile, false, elementLaw(profile), t, 0, false);
 }
+/**
+ * Whether {@link energyBelowUpper} takes its closed form for this profile at every positive finite t/rms: a Gaussian or
+ * half-Gaussian law with a spread and no bound, neither empty nor constant (the window's searches then ask it before
+ * the cheap bounds, src/scale/recommend.ts flushedEnergyUpperFirst).
+ */
+export function energyBelowUpperClosed(profile: MagnitudeProfile): boolean {
+  const shape = profile.shape;
+  return (
+    (shape === "gaussian" || shape === "half-gaussian") &&
+    !(profile.bound !== undefined && profile.bound > 0) &&
+    profile.log2Spread > 0 &&
+    profile.rms > 0 &&
+    profile.rms < Infinity &&
+    !isEmpty(profile) &&
+    !isConstantLike(profile)
+  );
+}
 // settle.ts capMean, E_z[min(1, c·e^{−m·z})] = Φ(z*) + c·e^{m²/2}·Q(z* + m) (z* = ln(c)/m), from the fast tails of
 // _math.ts (relative error below 1.2e-7 each, hence the 3e-7 of room) instead of the accurate tail and its logarithm:
 // the factor c·e^{m²/2} taken whole, and capMean itself where it overflows

@@ -2,7 +2,7 @@
  * Operation hazards: places where an operation, not a stored tensor, overflows or loses values. Each site
  * is judged against the formats of the plan entries that hold its result.
  */
-import { FORMATS } from "../formats/index.js";
+import { FORMATS, pow2 } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { HazardSite, MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { anyOf, exp2, LN2, normalSf } from "./_math.js";
@@ -1009,14 +1009,12 @@ function sumFarBelow(profile: MagnitudeProfile, level: number, terms: number): b
   const root = Math.sqrt(terms);
   // first with 2^(⌈y⌉+1) for exp2(y), which it passes, without the exponential: where the level is far enough below
   // even so, it is below the scale exp2 gives too (every rounding here is monotone)
+  // (pow2: exact, Infinity past 2^1023, where the quick test then cannot pass)
   const j = Math.ceil(y) + 1;
-  if (j < POW2_ABOVE.length && level / (root * (profile.rms * (POW2_ABOVE[j] as number) * (1 + 1e-9))) > 40) return true;
+  if (level / (root * (profile.rms * pow2(j) * (1 + 1e-9))) > 40) return true;
   const top = profile.rms * exp2(y) * (1 + 1e-9);
   return level / (root * top) > 40;
 }
-// 2^j for j = 0 … 1023, each doubled from the one before (exact)
-const POW2_ABOVE = new Float64Array(1024);
-for (let j = 0, power = 1; j < POW2_ABOVE.length; j++, power *= 2) POW2_ABOVE[j] = power;
 
 // The loss value times the loss scale, summed over `terms` per-example losses (1 under mean reduction); held in
 // the activation and the accumulate format as the sum of squares above. In an 8-bit format of a plan with scale
@@ -1411,15 +1409,13 @@ function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: num
 // ln n is at most LN_COUNT_CAP for n up to COUNT_CAP: ln 2^53 = 36.74 (Math.log within an ulp of it)
 const COUNT_CAP = 2 ** 53;
 const LN_COUNT_CAP = 37;
-// 2^−j for j = 0 … 1074, each halved from the one before (exact down to the smallest subnormal), 0 past them
-const POW2_BELOW = new Float64Array(1075);
-for (let j = 0, power = 1; j < POW2_BELOW.length; j++, power /= 2) POW2_BELOW[j] = power;
 // a lower bound on a·e^{−x} as anyAboveBounded computes it ((a)·Math.exp(−x), x ≥ 0): 2^−j with j = ⌈x·log2 e⌉ + 1 is
 // at most e^{−x}/2 (the ceiling and the rounding of x·log2 e move j by less than 1 binade), below Math.exp(−x), which
 // is within an ulp of e^{−x} (fdlibm's exp, from memory); a product of a with the smaller factor rounds to no more
 function floorU(a: number, x: number): number {
   const j = Math.ceil(x * Math.LOG2E) + 1;
-  return a * (j < POW2_BELOW.length ? (POW2_BELOW[j] as number) : 0);
+  // (pow2: exact down to the least subnormal, 0 past it)
+  return a * pow2(-j);
 }
 // the last p and n anyAboveBounded was asked with, the row of p's binade and ln n
 let atMostP = Number.NaN;

@@ -5,11 +5,11 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DRAWS, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
+import { DRAWS, energyBelowUpper, energyBelowUpperClosed, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
-import { INNER_DRAW_OUTSIDE, isConstantLike, isEmpty, nonzeroElements } from "../risk/laws.js";
+import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
 import { exp2 } from "../risk/_math.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
@@ -540,23 +540,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // dearer than the cheap bounds' two to four law evaluations per profile, and within 1.0–1.3× of the share where
   // they are often far above it (worked out when the search asks, not kept: a field more on each of ~4,000 objects)
   get flushedEnergyUpperFirst(): boolean {
-    return closedFormFlushUpper(this.parts.start) && (this.parts.same || closedFormFlushUpper(this.parts.end));
+    return energyBelowUpperClosed(this.parts.start) && (this.parts.same || energyBelowUpperClosed(this.parts.end));
   }
-}
-
-// energyBelowUpper takes the closed form for this profile at every positive finite t/rms: a Gaussian or half-Gaussian
-// law with a spread and no bound, neither empty nor constant
-function closedFormFlushUpper(profile: MagnitudeProfile): boolean {
-  const shape = profile.shape;
-  return (
-    (shape === "gaussian" || shape === "half-gaussian") &&
-    !(profile.bound !== undefined && profile.bound > 0) &&
-    profile.log2Spread > 0 &&
-    profile.rms > 0 &&
-    profile.rms < Infinity &&
-    !isEmpty(profile) &&
-    !isConstantLike(profile)
-  );
 }
 
 // The flushed share of a Gaussian or half-Gaussian law without a cap, or of a scale mixture of Gaussians, at any spread
