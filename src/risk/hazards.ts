@@ -615,8 +615,14 @@ function sentenceOf(draft: Draft, site: HazardSite, context: HazardContext, at: 
       const probability = probabilityWords(value);
       const sideIndex = side === "" ? 0 : side === AT_START ? 1 : 2;
       if (!tail.holds(format, verdict, probability, sideIndex, lossScale, 0)) {
-        tail.keep(format, verdict, probability, sideIndex, lossScale, 0,
-          `${lossScale === 1 ? "" : " after the loss scale"}) overflows ${format} with probability ${probability} per step${side} (${verdictWord(verdict)}).`);
+        // a probability met once (a sum near its limit, at growth 1 most of them): the words around it are kept instead
+        const unscaled = lossScale === 1 ? 1 : 0;
+        const before = GRADIENT_SUM_OVERFLOW_BEFORE;
+        if (!before.holds(format, "", "", unscaled, 0, 0)) before.keep(format, "", "", unscaled, 0, 0, `${unscaled === 1 ? "" : " after the loss scale"}) overflows ${format} with probability `);
+        const beforeText = before.text;
+        const after = GRADIENT_SUM_OVERFLOW_AFTER;
+        if (!after.holds("", verdict, side, 0, 0, 0)) after.keep("", verdict, side, 0, 0, 0, ` per step${side} (${verdictWord(verdict)}).`);
+        tail.keepPieces(format, verdict, probability, sideIndex, lossScale, 0, beforeText + probability + after.text);
       }
       return head.text + gradientOf(site) + " (rms " + plainNumber(draft.extra) + tail.text;
     }
@@ -710,6 +716,8 @@ const ACCUMULATION_ERROR_TAIL = new Words();
 const ACCUMULATION_OVERFLOW_TAIL = new Words();
 const GRADIENT_SUM_OVERFLOW_HEAD = new Words();
 const GRADIENT_SUM_OVERFLOW_TAIL = new Words();
+const GRADIENT_SUM_OVERFLOW_BEFORE = new Words();
+const GRADIENT_SUM_OVERFLOW_AFTER = new Words();
 const GRADIENT_SUM_ERROR_HEAD = new Words();
 const GRADIENT_SUM_ERROR_TAIL = new Words();
 const GRADIENT_SUM_FLUSH_MIDDLE = new Words();

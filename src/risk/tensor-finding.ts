@@ -49,14 +49,25 @@ export function overflowRiskFinding(
 const AFTER_SUBJECT = [new Words(), new Words(), new Words(), new Words()];
 
 function afterSubject(limits: RangeLimits, severity: Exclude<Verdict, "fits">, value: number, threshold: number, at: "start" | "end"): string {
-  const words = AFTER_SUBJECT[(severity === "fails" ? 2 : 0) + (at === "start" ? 0 : 1)] as Words;
+  const slot = (severity === "fails" ? 2 : 0) + (at === "start" ? 0 : 1);
+  const words = AFTER_SUBJECT[slot] as Words;
+  const format = limits.format;
   const verb = limits.saturates ? " saturates " : " overflows ";
   const probability = plainNumber(value);
-  if (!words.holds(limits.format, verb, probability, at === "start" ? 0 : 1, threshold, 0)) {
-    words.keep(limits.format, verb, probability, at === "start" ? 0 : 1, threshold, 0, `${verb}${limits.format} with probability ${probability} per step ${when(at)} (limit ${plainNumber(threshold)}).`);
+  if (!words.holds(format, verb, probability, at === "start" ? 0 : 1, threshold, 0)) {
+    // most probabilities written are met once (a tensor near its limit): the words around them are kept instead
+    const head = PROBABILITY_HEAD;
+    if (!head.holds(format, verb, "", 0, 0, 0)) head.keep(format, verb, "", 0, 0, 0, `${verb}${format} with probability `);
+    const before = head.text;
+    const foot = PROBABILITY_FOOT[slot] as Words;
+    if (!foot.holds("", "", "", threshold, 0, 0)) foot.keep("", "", "", threshold, 0, 0, ` per step ${when(at)} (limit ${plainNumber(threshold)}).`);
+    words.keepPieces(format, verb, probability, at === "start" ? 0 : 1, threshold, 0, before + probability + foot.text);
   }
   return words.text;
 }
+// the words before a probability (a verb and a format) and after it (the moment and the limit, per grade and moment)
+const PROBABILITY_HEAD = new Words();
+const PROBABILITY_FOOT = [new Words(), new Words(), new Words(), new Words()];
 
 /**
  * The findings of a decided risk with none, shared until the risk's object is made (src/risk/tensor-check.ts gives each

@@ -5,6 +5,8 @@
  * @example plainNumber(0.000123) // => "1.23e-4"
  */
 export function plainNumber(x: number): string {
+  // a probability of 1 is the commonest number a large check writes (every tensor or sum that surely overflows)
+  if (x === 1) return "1";
   if (!Number.isFinite(x)) return x > 0 ? "infinity" : x < 0 ? "-infinity" : "not a number";
   if (x === 0) return "0";
   const magnitude = Math.abs(x);
@@ -272,6 +274,24 @@ export class Words {
     kept.z = z;
     kept.extra = Number.NaN;
     kept.text = flat(text);
+  }
+
+  /**
+   * As {@link keep}, but the text kept as the pieces it was joined from: for words few sentences share (keyed by a
+   * number that differs from one sentence to the next) joined from pieces that are themselves kept, where flattening
+   * would copy every character of each for one or two sentences.
+   */
+  keepPieces(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    this.swap();
+    const kept = this.front;
+    kept.a = a;
+    kept.b = b;
+    kept.c = c;
+    kept.x = x;
+    kept.y = y;
+    kept.z = z;
+    kept.extra = Number.NaN;
+    kept.text = text;
   }
 
   private swap(): void {

@@ -179,4 +179,19 @@ describe("Words", () => {
     words.keep("binary32", "", "", Number.NaN, 0, 0, "nan");
     expect(words.holds("binary32", "", "", Number.NaN, 0, 0)).toBe(false);
   });
+
+  it("gives back words kept as pieces as it does words kept whole (random sequences, either way of keeping)", () => {
+    fc.assert(
+      fc.property(fc.array(fc.tuple(fc.constantFrom("binary16", "binary32"), fc.constantFrom(32, 256), fc.boolean()), { maxLength: 40 }), (asks) => {
+        const words = new Words();
+        for (const [format, terms, pieces] of asks) {
+          if (!words.holds(format, "", "", terms, 0, 0)) {
+            if (pieces) words.keepPieces(format, "", "", terms, 0, 0, " accumulates " + String(terms) + " terms in " + format + " (0)");
+            else words.keep(format, "", "", terms, 0, 0, made(format, terms, 0));
+          }
+          expect(words.text).toBe(made(format, terms, 0));
+        }
+      }),
+    );
+  });
 });
