@@ -117,6 +117,13 @@ export class FormatDecision {
   /** the squared threshold unit past which each any-above bound holds without its exponentials (quickSquare) */
   readonly overflowQuick: number;
   readonly headroomQuick: number;
+  /**
+   * anyAboveWithin's numbers for the overflow bound and for the headroom's (ASK_LEVEL…ASK_QUICK): read from an array of
+   * doubles, not passed, since doubles passed to a call the compiler does not inline are boxed, five a bound (a plain
+   * array: its doubles are stored unboxed too, and a typed array costs microseconds to make, a decision per judgement)
+   */
+  readonly overflowAsk: number[];
+  readonly headroomAsk: number[];
   readonly start = new Side();
   readonly end = new Side();
   /**
@@ -136,6 +143,8 @@ export class FormatDecision {
   readonly keptEnds: (MagnitudeProfile | null)[] = [];
   readonly keptOverflows: number[] = [];
   keptNext = 0;
+  /** countedFindings' records for a visitor that reads only kinds and severities (kindOnly), made when first asked */
+  readonly kindRecords: (Finding | undefined)[] = [];
 
   constructor(limits: RangeLimits, thresholds: RiskThresholds) {
     const t = thresholds;
@@ -155,6 +164,8 @@ export class FormatDecision {
     this.headroomFar = normalSf(this.headroomDraw);
     this.overflowQuick = quickSquare(this.finding / 2, this.overflowFar);
     this.headroomQuick = quickSquare(t.maxQuantile / 2, this.headroomFar);
+    this.overflowAsk = [limits.overflowLevel, this.finding / 2, this.overflowDraw, this.overflowFar, this.overflowQuick];
+    this.headroomAsk = [this.headroomLevel, t.maxQuantile / 2, this.headroomDraw, this.headroomFar, this.headroomQuick];
   }
 }
 
@@ -200,19 +211,27 @@ function belowCode(side: Side, d: FormatDecision, gradient: boolean): number {
 // holds by orders of magnitude: it is first taken without its two exponentials, the threshold unit u = (t/rms)·e^{−m·z₀}
 // bounded below by (t/rms)·2^{−k}, k ≥ m·z₀·log₂e (one more for the rounding of the product), against `quick`
 // (quickSquare, its u² for this target): where that holds, so does the bound as computed below, so the answer is its.
-function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: number, quick: number): boolean {
+// `ask`: the level t, the target, z₀, Q(z₀) and the quick test's u² (FormatDecision's overflowAsk, headroomAsk)
+function anyAboveWithin(side: Side, ask: readonly number[]): boolean {
   if (side.count === 0) return true;
+  const t = ask[ASK_LEVEL] as number;
+  const z0 = ask[ASK_DRAW] as number;
   if (!(t > 0)) return false;
   const a = t / side.rms;
   const k = Math.ceil(side.m * z0 * LOG2E) + 1;
   // (2^−k exact from the formats' table, e^−x ≥ 2^−k wherever k ≥ x·log₂e; 0 past the smallest double: no quick answer)
   if (k >= 0 && side.count <= QUICK_COUNT) {
     const low = a * pow2(-k);
-    if (low * low >= quick) return true;
+    if (low * low >= (ask[ASK_QUICK] as number)) return true;
   }
   const u = farThreshold(a, side.m, z0);
-  return far + side.count * Math.exp(-(u * u) / 2) <= target;
+  return (ask[ASK_FAR] as number) + side.count * Math.exp(-(u * u) / 2) <= (ask[ASK_TARGET] as number);
 }
+const ASK_LEVEL = 0;
+const ASK_TARGET = 1;
+const ASK_DRAW = 2;
+const ASK_FAR = 3;
+const ASK_QUICK = 4;
 
 /**
  * Whether the side keeps at least the headroom asked for: its predicted max (the level passed with probability
@@ -222,14 +241,14 @@ function anyAboveWithin(side: Side, t: number, target: number, z0: number, far: 
 function headroomDecided(side: Side, d: FormatDecision): boolean {
   if (side.count === 0) return true;
   const t = d.thresholds;
-  if (anyAboveWithin(side, d.headroomLevel, t.maxQuantile / 2, d.headroomDraw, d.headroomFar, d.headroomQuick)) return true;
+  if (anyAboveWithin(side, d.headroomAsk)) return true;
   return headroomOf(side, d) >= t.headroomAtRisk;
 }
 
 // The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
 // as settledRisk gives it (the same call, or its answer where surelySettledOne shows it)
 function overflowDecided(side: Side, d: FormatDecision): number {
-  if (anyAboveWithin(side, d.limits.overflowLevel, d.finding / 2, d.overflowDraw, d.overflowFar, d.overflowQuick)) return -1;
+  if (anyAboveWithin(side, d.overflowAsk)) return -1;
   if (side.count === 0) return 0;
   return surelySettledOne(side, d.limits.overflowLevel) ? 1 : overflowRiskOf(side.law(), d.limits);
 }
@@ -498,8 +517,15 @@ function noisePast(side: Side, d: FormatDecision, unworked: boolean): number {
   if (side.count === 0) return -1;
   const limits = d.limits;
   const holds = boundsHold(side, limits);
-  if (holds && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
-  const noise = unworked && holds && noiseSurelyPast(side, d) ? NOISE_UNWORKED : subnormalNoise(side.law(), limits);
+  // a side that looks far past the limit asks the lower bound first: the upper bound at half the limit and the lower
+  // one at twice it bound one draw integral, so they never both hold and either order gives the same answer
+  const early = unworked && holds && farPastLikely(side, d);
+  let noise: number;
+  if (early && noiseSurelyPast(side, d)) noise = NOISE_UNWORKED;
+  else {
+    if (holds && gaussianNoiseWithin(side.rms, side.m, side.bound, limits, d.noiseLimit / 2)) return -1;
+    noise = unworked && holds && !early && noiseSurelyPast(side, d) ? NOISE_UNWORKED : subnormalNoise(side.law(), limits);
+  }
   if (noise <= d.noiseLimit) return -1;
   settle(side, limits);
   if (side.settled) return noise;
@@ -510,6 +536,22 @@ function noisePast(side: Side, d: FormatDecision, unworked: boolean): number {
   if (flushedFarUnder(side, limits, belowNormal)) return noise;
   return Math.max(0, belowNormal - flushedShare(side, limits)) === 0 ? 0 : noise;
 }
+
+// Whether a side's subnormal noise looks far past the limit: its bound without the cap on the band's share
+// (noiseBound's, Δ²/(12·rms²)·(√(2/π)·h/rms)·e^{9m²/2}, the exponential taken down to a power of two) at least FAR_PAST
+// times half the limit. Only the order of noisePast's two bounds hangs on it: on the weighed gradients of a 1,000-layer
+// network, no upper bound at half the limit held past about 2^11 times it, and most lower bounds held past 2^12
+function farPastLikely(side: Side, d: FormatDecision): boolean {
+  const limits = d.limits;
+  const rms = side.rms;
+  const delta = limits.smallest;
+  const m = side.m;
+  const uncapped = ((delta * delta) / (12 * rms * rms)) * ((NOISE_DENSITY * limits.minNormal) / rms);
+  return uncapped * pow2(Math.floor(4.5 * m * m * LOG2E)) >= FAR_PAST * (d.noiseLimit / 2);
+}
+const FAR_PAST = 2 ** 12;
+// a Gaussian magnitude's density bound √(2/π) (subnormal-noise.ts's)
+const NOISE_DENSITY = Math.sqrt(2 / Math.PI);
 
 // What noisePast returns for a noise past its limit that it did not work out (countedFindings works it out when read)
 const NOISE_UNWORKED = Infinity;
@@ -550,12 +592,26 @@ function belowNormalAtLeast(side: Side, limits: RangeLimits): number {
 // Simpson rule's error near spread 2.5 (1e-5, DEVELOPERS.md "Draw integrals")
 const FLUSHED_MARGIN = 1e-3;
 
-// grade of src/risk/tensor.ts: the severity a value passing its thresholds takes, null for none
-function grade(value: number, atRisk: number, fails: number): Exclude<Verdict, "fits"> | null {
-  if (value > fails) return "fails";
-  if (value > atRisk) return "at-risk";
-  return null;
+/**
+ * The mark of a judgeScaled visitor (src/risk/judge.ts) that reads only each finding's kind and severity (besides the
+ * subject's index and the condition it is given): the loss-scale pick's counts (src/scale/pick.ts). Its tensors' findings
+ * are then one shared record per kind and severity (kindOnly), without the values: a weighed scale's thousands of
+ * findings make no object each, and no noise is worked out for a value never read.
+ */
+export const KINDS_ONLY: unique symbol = Symbol("kinds only");
+
+// countedFindings' finding for a KINDS_ONLY visitor: the decision's record of the kind (at `slot`, its failing one next)
+// and severity, its value and threshold NaN and its subject empty (none of them read)
+function kindOnly(d: FormatDecision, slot: number, kind: FindingKind, severity: Exclude<Verdict, "fits">): Finding {
+  const i = severity === "fails" ? slot + 1 : slot;
+  return (d.kindRecords[i] ??= Object.freeze({ format: d.limits.format, subject: "", source: "tensor", kind, severity, value: Number.NaN, threshold: Number.NaN, sentence: "" }));
 }
+const OVERFLOW_SLOT = 0;
+const SATURATION_SLOT = 2;
+const HEADROOM_SLOT = 4;
+const ENERGY_SLOT = 6;
+const FLUSHED_SLOT = 8;
+const NOISE_SLOT = 10;
 
 // a counted finding: no sentence and no moment (countedFindings)
 function counted(subject: string, d: FormatDecision, kind: FindingKind, severity: Exclude<Verdict, "fits">, value: number, threshold: number): Finding {
@@ -571,9 +627,18 @@ function counted(subject: string, d: FormatDecision, kind: FindingKind, severity
  * and headroom are decided as {@link decidedFindings} decides them, so what is worked out here is only what a finding
  * needs: no statistics (the footroom), and no overflow integral or share that a bound keeps under its threshold. Puts
  * them at the start of FOUND (src/risk/tensor-finding.ts) and returns their count; −1 where the bounds do not read the
- * law (a tensor judged from its numbers then). `start`, `end` and `factor` as {@link decidedFindings} takes them.
+ * law (a tensor judged from its numbers then). `start`, `end` and `factor` as {@link decidedFindings} takes them;
+ * `kindsOnly` for a visitor marked {@link KINDS_ONLY} (shared records, kindOnly).
  */
-export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfile, end: MagnitudeProfile, same: boolean, decision: FormatDecision, factor = 1): number {
+export function countedFindings(
+  tensor: TensorPrediction,
+  start: MagnitudeProfile,
+  end: MagnitudeProfile,
+  same: boolean,
+  decision: FormatDecision,
+  factor = 1,
+  kindsOnly = false,
+): number {
   const d = decision;
   const first = d.start;
   const last = same ? first : d.end;
@@ -585,9 +650,11 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
   const startRisk = overflowDecided(first, d);
   const endRisk = same ? startRisk : overflowDecided(last, d);
   const worst = Math.max(startRisk, endRisk);
-  const overflow = grade(worst, d.atRisk, t.overflowFails);
+  // (each severity as src/risk/tensor.ts's grade gives it, written out: its doubles passed were boxed, three a call)
+  const overflow = worst > t.overflowFails ? "fails" : worst > d.atRisk ? "at-risk" : null;
   if (overflow !== null) {
-    FOUND[found++] = counted(subject, d, d.limits.saturates ? "saturation" : "overflow", overflow, worst, overflow === "fails" ? t.overflowFails : d.atRisk);
+    const kind = d.limits.saturates ? "saturation" : "overflow";
+    FOUND[found++] = kindsOnly ? kindOnly(d, kind === "overflow" ? OVERFLOW_SLOT : SATURATION_SLOT, kind, overflow) : counted(subject, d, kind, overflow, worst, overflow === "fails" ? t.overflowFails : d.atRisk);
   } else {
     // the headroom's finding: where a side does not keep the headroom by its bound, its headroom itself
     const keepsLast = headroomDecided(last, d);
@@ -596,29 +663,40 @@ export function countedFindings(tensor: TensorPrediction, start: MagnitudeProfil
       const headroom = Math.min(keepsFirst ? Infinity : headroomOf(first, d), keepsLast ? Infinity : headroomOf(last, d));
       // a headroom that is not a number (never for a side with elements) is judged from the numbers
       if (headroom !== headroom) return -1;
-      FOUND[found++] = counted(subject, d, "little-headroom", "at-risk", headroom, t.headroomAtRisk);
+      FOUND[found++] = kindsOnly ? kindOnly(d, HEADROOM_SLOT, "little-headroom", "at-risk") : counted(subject, d, "little-headroom", "at-risk", headroom, t.headroomAtRisk);
     }
   }
   const role = tensor.role;
   if (isGradientRole(role)) {
     const value = Math.max(energyPast(first, d), same ? -1 : energyPast(last, d));
-    const energy = grade(value, t.energyAtRisk, t.energyFails);
-    if (energy !== null) FOUND[found++] = counted(subject, d, "gradient-energy-flushed", energy, value, energy === "fails" ? t.energyFails : t.energyAtRisk);
+    const energy = value > t.energyFails ? "fails" : value > t.energyAtRisk ? "at-risk" : null;
+    if (energy !== null) {
+      FOUND[found++] = kindsOnly
+        ? kindOnly(d, ENERGY_SLOT, "gradient-energy-flushed", energy)
+        : counted(subject, d, "gradient-energy-flushed", energy, value, energy === "fails" ? t.energyFails : t.energyAtRisk);
+    }
   }
   const flushValue = Math.max(flushedPast(first, d), same ? -1 : flushedPast(last, d));
-  const flushed = grade(flushValue, t.flushedAtRisk, t.flushedFails);
-  if (flushed !== null) FOUND[found++] = counted(subject, d, "flushed-values", flushed, flushValue, flushed === "fails" ? t.flushedFails : t.flushedAtRisk);
+  const flushed = flushValue > t.flushedFails ? "fails" : flushValue > t.flushedAtRisk ? "at-risk" : null;
+  if (flushed !== null) {
+    FOUND[found++] = kindsOnly ? kindOnly(d, FLUSHED_SLOT, "flushed-values", flushed) : counted(subject, d, "flushed-values", flushed, flushValue, flushed === "fails" ? t.flushedFails : t.flushedAtRisk);
+  }
   // the end first (a loss scale's noisy gradients are most often noisy there): where it is past the limit the start's
   // noise is worked out only if the finding's value is read, as is a noise its lower bound puts past the limit
   const lastNoise = noisePast(last, d, true);
   if (lastNoise > d.noiseLimit) {
-    FOUND[found++] =
-      same && lastNoise !== NOISE_UNWORKED ? counted(subject, d, "subnormal-values", "at-risk", lastNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, last.source, lastNoise, same ? null : first.source);
+    FOUND[found++] = kindsOnly
+      ? kindOnly(d, NOISE_SLOT, "subnormal-values", "at-risk")
+      : same && lastNoise !== NOISE_UNWORKED
+        ? counted(subject, d, "subnormal-values", "at-risk", lastNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, last.source, lastNoise, same ? null : first.source);
   } else if (!same) {
     // the end's noise within the limit: the value is the start's
     const firstNoise = noisePast(first, d, true);
     if (firstNoise > d.noiseLimit) {
-      FOUND[found++] = firstNoise !== NOISE_UNWORKED ? counted(subject, d, "subnormal-values", "at-risk", firstNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, first.source, firstNoise, null);
+      FOUND[found++] = kindsOnly
+        ? kindOnly(d, NOISE_SLOT, "subnormal-values", "at-risk")
+        : firstNoise !== NOISE_UNWORKED
+          ? counted(subject, d, "subnormal-values", "at-risk", firstNoise, d.noiseLimit) : new CountedNoise(subject, d, factor, first.source, firstNoise, null);
     }
   }
   return found;

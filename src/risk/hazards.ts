@@ -983,13 +983,21 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
   const counting = context.countOnly === true;
   let scaled: MagnitudeProfile | null = null;
   let overflow = 0;
-  if (!(counting && sumFarBelow(input, level / lossScale, terms))) {
+  // a count whose overflow side a larger scale showed quiet (OVERFLOW_QUIET) takes both tests below as passed
+  const known = counting && OVERFLOW_QUIET.known;
+  if (known) {
+    // (both bounds passed: the overflow 0 and nothing scaled, as the tests below leave it)
+  } else if (!(counting && sumFarBelow(input, level / lossScale, terms))) {
+    OVERFLOW_QUIET.shown = false;
     scaled = scaledIn(TERMS_SCALED, input, lossScale);
     overflow = partialSumsOverflow(scaled, terms, level, false);
   }
-  if (output !== undefined && overflow < 1 && !(counting && anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2))) {
-    const sum = scaledIn(SUM_SCALED, output, lossScale);
-    if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
+  if (!known && output !== undefined && overflow < 1) {
+    if (!(counting && anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2))) {
+      OVERFLOW_QUIET.shown = false;
+      const sum = scaledIn(SUM_SCALED, output, lossScale);
+      if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
+    } else if (!shownAtEveryLower(output)) OVERFLOW_QUIET.shown = false;
   }
   let lost = 0;
   if (!(counting && energyBelowAtMost(input, flushBound / lossScale, Math.min(t.energyAtRisk, t.energyFails) / 2))) {
@@ -1258,22 +1266,23 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   const startSum = site.output !== undefined ? site.output : site.input;
   // as summedIn scales it: the predicted sum by the loss scale, else one contribution by the loss scale times the terms
   const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
-  grade(countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), overflowAtRisk, t.overflowFails, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, level / lossScale);
+  // a side's overflow 0 where a larger scale showed the site's quiet (OVERFLOW_QUIET), as the bound then gives it
+  const known = OVERFLOW_QUIET.known;
+  grade(known ? 0 : countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), overflowAtRisk, t.overflowFails, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, level / lossScale);
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   if (sides) {
     const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
     const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
     const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
-    grade(countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), overflowAtRisk, t.overflowFails, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, level / lossScale);
+    grade(known ? 0 : countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), overflowAtRisk, t.overflowFails, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, level / lossScale);
     putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
     const workers = context.workers;
-    const flushBound = Math.min(t.energyAtRisk, t.energyFails) / 2;
-    grade(countedLost(START_SCALED, START_DIVIDED, site.input, lossScale, workers, limits, t, flushBound), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
+    grade(countedLost(START_SCALED, START_DIVIDED, site.input, context), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
     putGraded(start, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     if (sides) {
-      grade(countedLost(END_SCALED, END_DIVIDED, siteEnd.input, lossScale, workers, limits, t, flushBound), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
+      grade(countedLost(END_SCALED, END_DIVIDED, siteEnd.input, context), t.energyAtRisk, t.energyFails, 0, limits.flushBound * workers);
       putGraded(end, limits, "gradientSums", "flushed-energy", "gradient-sum-flush", true, GRADIENT_SUM_FLUSH, false);
     }
   }
@@ -1289,21 +1298,42 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
 // a summed side's overflow probability where only its finding counts (no scale factors): 0 where the bound keeps it at
 // most `bound`, else that of `sum` times `factor`, scaled into `slot`
 function countedSumOverflow(slot: MagnitudeProfile, sum: MagnitudeProfile, factor: number, level: number, bound: number): number {
-  return anyAboveAtMost(sum, level / factor, nonzeroElements(sum), bound) ? 0 : probabilityAnyAbove(scaledIn(slot, sum, factor), level);
+  if (anyAboveAtMost(sum, level / factor, nonzeroElements(sum), bound)) {
+    if (!shownAtEveryLower(sum)) OVERFLOW_QUIET.shown = false;
+    return 0;
+  }
+  OVERFLOW_QUIET.shown = false;
+  return probabilityAnyAbove(scaledIn(slot, sum, factor), level);
 }
 
-// the share a division by the worker count flushes where only its finding counts (no scale factors): 0 where the bound
-// on the divided gradients keeps it at most `bound`, else lostEnergy's, the gradients scaled into the slots
-function countedLost(
-  scaledSlot: MagnitudeProfile,
-  dividedSlot: MagnitudeProfile,
-  input: MagnitudeProfile,
-  lossScale: number,
-  workers: number,
-  limits: RangeLimits,
-  t: RiskThresholds,
-  bound: number,
-): number {
+/**
+ * A count's overflow side of a gradient sum or a gradient's accumulation (countedSums, gradientAccumulation) shown
+ * quiet at one loss scale is quiet at every smaller one: each of its bounds reads the level over the scale (t = level/L,
+ * or level/(L·terms)), which a smaller L leaves at least as large (a rounded division or product is monotone in each
+ * operand), and each test it passed passes for a larger t: sumFarBelow's two quotients of t by a number of the profile
+ * alone, and anyAboveBounded's test without its exponential or logarithm (t/rms times an exact power of two, squared,
+ * against a number of p and the spread alone), for a profile with no bound (with one, a larger t may reach it, where
+ * the Gaussian law no longer holds). The test with its exponential and logarithm is not taken as shown (Math.log's
+ * monotony is not part of its definition). judge.ts judgeScaled sets `known` for a site a larger scale showed quiet
+ * (then every such test counts as passed: the same numbers), and reads `shown` after each site it judges.
+ */
+export const OVERFLOW_QUIET = { known: false, shown: true };
+
+// whether anyAboveBounded's last pass holds at every larger level for the profile (see OVERFLOW_QUIET)
+function shownAtEveryLower(profile: MagnitudeProfile): boolean {
+  return boundedQuick && (profile.bound === undefined || !(profile.bound > 0));
+}
+
+// the share a division by the context's worker count flushes where only its finding counts (no scale factors, the sum
+// buffer's format): 0 where the bound on the divided gradients keeps it at most half the lower threshold, else
+// lostEnergy's, the gradients scaled into the slots (the context's numbers read here, not passed: doubles passed to a
+// call the compiler does not inline are boxed)
+function countedLost(scaledSlot: MagnitudeProfile, dividedSlot: MagnitudeProfile, input: MagnitudeProfile, context: HazardContext): number {
+  const lossScale = context.lossScale;
+  const workers = context.workers;
+  const limits = context.gradientSums;
+  const t = context.thresholds;
+  const bound = Math.min(t.energyAtRisk, t.energyFails) / 2;
   if (energyBelowAtMost(input, (limits.flushBound * workers) / lossScale, bound)) return 0;
   const scaled = scaledIn(scaledSlot, input, lossScale);
   const divided = scaledIn(dividedSlot, scaled, 1 / workers);
@@ -1374,6 +1404,18 @@ export function anyAboveAtMost(profile: MagnitudeProfile, t: number, n: number, 
 // {@link anyAboveAtMost}'s bound for any p in (0, 1): whether the draw integral itself is at most p (the caller keeps
 // the rule's slack in mind)
 function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: number): boolean {
+  BOUNDED_ASK[0] = t;
+  BOUNDED_ASK[1] = n;
+  BOUNDED_ASK[2] = p;
+  return boundedAsked(profile);
+}
+// anyAboveBounded's t, n and p, written by it (small enough to be inlined: its doubles cross unboxed) for boundedAsked
+const BOUNDED_ASK = new Float64Array(3);
+
+function boundedAsked(profile: MagnitudeProfile): boolean {
+  const t = BOUNDED_ASK[0] as number;
+  const n = BOUNDED_ASK[1] as number;
+  const p = BOUNDED_ASK[2] as number;
   if (!(p > 0 && p < 1) || !(t > 0) || !(n > 0) || !gaussianAt(profile, t)) return false;
   const m = profile.log2Spread > 0 ? profile.log2Spread * LN2 : 0;
   // shown for 2^k ≤ p (k = ⌊log2 p⌋), a stronger claim: z₀ and its numbers are then read off a table per binade of p
@@ -1402,8 +1444,12 @@ function anyAboveBounded(profile: MagnitudeProfile, t: number, n: number, p: num
   // rounding below is monotone), so the sum tested below is at most the one tested here
   if (n <= COUNT_CAP) {
     const least = floorU(t / profile.rms, x);
-    if (LN_COUNT_CAP - (least * least) / 2 <= c) return true;
+    if (LN_COUNT_CAP - (least * least) / 2 <= c) {
+      boundedQuick = true;
+      return true;
+    }
   }
+  boundedQuick = false;
   const u = (t / profile.rms) * Math.exp(-x);
   const rate = m * u * u - far;
   const below = rate > 0 ? Math.min(0, (AT_MOST[at + 1] as number) - Math.log(rate)) : 0;
@@ -1430,6 +1476,8 @@ let atMostP = Number.NaN;
 let atMostAt = 0;
 let atMostN = Number.NaN;
 let atMostLogN = Number.NaN;
+// whether anyAboveBounded's last true came from its test without an exponential or a logarithm (OVERFLOW_QUIET)
+let boundedQuick = false;
 // per binade of p, 2^k for k = 0, −1, …, −99: z₀, ln φ(z₀) and ln(2^k/2), filled as asked (NaN until then)
 const AT_MOST = new Float64Array(300).fill(Number.NaN);
 

@@ -20,7 +20,7 @@ import { lossScaleProblem } from "../spec/limits.js";
 import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
+import { evaluateHazard, evaluateSite, OVERFLOW_QUIET, type HazardContext } from "./hazards.js";
 import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
@@ -36,7 +36,7 @@ import {
   type TensorRiskOptions,
   type TensorStatistics,
 } from "./tensor.js";
-import { countedFindings, decidedFindings, FormatDecision } from "./decide.js";
+import { countedFindings, decidedFindings, FormatDecision, KINDS_ONLY } from "./decide.js";
 import { FOUND, NO_FINDINGS } from "./tensor-finding.js";
 import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -483,6 +483,10 @@ export function judgeScaled(
   setting.notHeld.countOnly = true;
   let context: HazardContext | undefined;
   const sites = subjects.sites.length;
+  const memo = scaledMemo(subjects, format, complete);
+  // a visitor that reads only kinds and severities gets the tensors' findings as shared records (decide.ts KINDS_ONLY)
+  const kindsOnly = (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] === true;
+  const quiet = memo.scales;
   // indexed loops: an iterator's result objects are a heap allocation per subject where the loop is not optimized
   for (let o = 0; o < order.length; o++) {
     const i = order[o] as number;
@@ -492,7 +496,14 @@ export function judgeScaled(
         context = hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
         context.countOnly = true;
       }
+      // a site whose overflow side a scale at least this large showed quiet has it quiet here (hazards.ts OVERFLOW_QUIET)
+      const shows = site.kind === "gradient-sum" || (site.kind === "accumulation" && site.gradient === true);
+      const knownAbove = quiet[i] as number;
+      OVERFLOW_QUIET.known = shows && lossScale <= knownAbove;
+      OVERFLOW_QUIET.shown = true;
       const checked = evaluateHazard(site, context, origin);
+      if (shows && OVERFLOW_QUIET.shown && lossScale > knownAbove) quiet[i] = lossScale;
+      OVERFLOW_QUIET.known = false;
       const loss = site.kind === "loss-value";
       const findings = checked.findings;
       for (let k = 0; k < findings.length; k++) {
@@ -506,7 +517,7 @@ export function judgeScaled(
     // not held in the format: no findings (as judgeTensor judges it)
     if (entryFormat(setting.evaluated, heldBy(tensor)) !== format) continue;
     // the findings' kinds and severities alone, decided without the tensor's numbers where the bounds read its law
-    const found = countedTensor(tensor, setting, lossScale, subjects.arrays);
+    const found = countedTensor(tensor, setting, lossScale, subjects.arrays, kindsOnly);
     if (found === 0) continue;
     if (found > 0) {
       // FOUND holds them until the next tensor's judgement, which a visitor may start (judging again): read out first,
@@ -528,13 +539,42 @@ export function judgeScaled(
   }
 }
 
+/**
+ * What judgeScaled keeps of scaled subjects between its calls (a weighing counts the same subjects at several scales),
+ * for the format and thresholds they were last counted in: per site, the largest loss scale at which its overflow side
+ * was shown quiet (0: none; src/risk/hazards.ts OVERFLOW_QUIET), quiet at every smaller one. The subjects are made once
+ * and not changed (ScaledSubjects).
+ */
+interface ScaledMemo {
+  format: FormatName;
+  thresholds: RiskThresholds;
+  scales: number[];
+}
+const SCALED_MEMOS = new WeakMap<ScaledSubjects, ScaledMemo>();
+
+function scaledMemo(subjects: ScaledSubjects, format: FormatName, thresholds: RiskThresholds): ScaledMemo {
+  const known = SCALED_MEMOS.get(subjects);
+  if (known !== undefined && known.format === format && sameThresholds(known.thresholds, thresholds)) return known;
+  // (a plain array: a typed array costs microseconds to make, as much as a small spec's count)
+  const memo: ScaledMemo = { format, thresholds, scales: new Array<number>(subjects.sites.length).fill(0) };
+  SCALED_MEMOS.set(subjects, memo);
+  return memo;
+}
+
+function sameThresholds(a: RiskThresholds, b: RiskThresholds): boolean {
+  if (a === b) return true;
+  for (const key of Object.keys(a) as (keyof RiskThresholds)[]) if (a[key] !== b[key]) return false;
+  return Object.keys(a).length === Object.keys(b).length;
+}
+
 // A tensor's counted findings in a setting that holds it (src/risk/decide.ts countedFindings, into FOUND), or −1 where
-// judgeTensor judges it: a part of a stored array, a probability row, scale factors, a law the bounds do not read
-function countedTensor(tensor: TensorPrediction, setting: FormatSetting, lossScale: number, arrays: Map<string, TensorPrediction[]> | null): number {
+// judgeTensor judges it: a part of a stored array, a probability row, scale factors, a law the bounds do not read;
+// `kindsOnly` for a visitor that reads only kinds and severities (decide.ts KINDS_ONLY)
+function countedTensor(tensor: TensorPrediction, setting: FormatSetting, lossScale: number, arrays: Map<string, TensorPrediction[]> | null, kindsOnly: boolean): number {
   if (setting.held.perTensorScaling || arrays?.has(tensor.id) === true || isProbabilityRow(tensor)) return -1;
   const same = sameDistribution(tensor.start, tensor.end);
   // the profiles before the factor, which the decision applies where it works a number out
-  return countedFindings(tensor, tensor.start, same ? tensor.start : tensor.end, same, setting.decision, lossScaleFactor(tensor.role, lossScale));
+  return countedFindings(tensor, tensor.start, same ? tensor.start : tensor.end, same, setting.decision, lossScaleFactor(tensor.role, lossScale), kindsOnly);
 }
 
 /**

@@ -20,6 +20,7 @@ import {
   type FindingKind,
   type ScaledSubjects,
 } from "../risk/index.js";
+import { KINDS_ONLY } from "../risk/decide.js";
 import type { NetworkSpec } from "../spec/types.js";
 import type { ScaleWindow } from "./window.js";
 
@@ -172,6 +173,9 @@ export function weighPick(
   // judged, go first in every later judgement
   const first: number[] = [];
   let seen = new Uint8Array(0);
+  // the order of a judgement: `first`, then the subjects not seen, so every subject once (one array for every judgement:
+  // judgeScaled reads it while it judges, and nothing keeps it)
+  let order: number[] = [];
   // the exponents judged whole (no early stop), so 1 is not judged twice when the candidates reached it
   const whole = new Map<number, ScaledFindings>();
   const judge = (log2: number, stop: ((found: ScaledFindings) => boolean) | null): ScaledFindings => {
@@ -196,12 +200,14 @@ export function weighPick(
         }
       }
       subjects = own;
+      order = new Array<number>(seen.length).fill(0);
     }
-    const order = [...first];
-    for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order.push(i);
+    let at = 0;
+    for (let k = 0; k < first.length; k++) order[at++] = first[k] as number;
+    for (let i = 0; i < seen.length; i++) if (seen[i] === 0) order[at++] = i;
     const found = none();
     let stopped = false;
-    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, (f, i, conditional) => {
+    const visit = (f: Pick<Finding, "kind" | "severity">, i: number, conditional: boolean): boolean => {
       if (!movesWithScale(f)) return true;
       add(found, f, conditional);
       if (seen[i] === 0) {
@@ -210,7 +216,8 @@ export function weighPick(
       }
       stopped = stop !== null && stop(found);
       return !stopped;
-    });
+    };
+    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, kindsOnly(visit));
     if (!stopped) whole.set(log2, found);
     return found;
   };
@@ -279,12 +286,19 @@ export function centreLeavesFindings(subjects: ScaledSubjects, format: FormatNam
   const sites = subjects.sites.length;
   for (let i = 0; i < sites; i++) if ((subjects.sites[i] as ScaledSubjects["sites"][number]).site.kind === "loss-value") order.push(i);
   let found = false;
-  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, (f) => {
+  const visit = (f: Pick<Finding, "kind">): boolean => {
     if (!movesWithScale(f)) return true;
     found = true;
     return false;
-  });
+  };
+  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, kindsOnly(visit));
   return found;
+}
+
+// a visitor of judgeScaled marked as reading only each finding's kind and severity (src/risk/decide.ts KINDS_ONLY)
+function kindsOnly<V extends object>(visit: V): V {
+  (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] = true;
+  return visit;
 }
 
 // the indices (judgeScaled's) of the tensors that set the window's lower edge, then its upper one

@@ -7,6 +7,7 @@ import { parseSpec } from "../../src/spec/index.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predictForCheck } from "../../src/magnitude/predict.js";
 import { judgeScaled, scaledSubjects } from "../../src/risk/judge.js";
+import { KINDS_ONLY } from "../../src/risk/decide.js";
 import { centreLeavesFindings } from "../../src/scale/pick.js";
 import { mlpSpec } from "../../bench/generated-specs.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -314,13 +315,12 @@ describe("a pick weighed before the judgement, judged at its largest scale first
   });
 });
 
-describe("the scales the pick weighs are judged for their counts alone", () => {
-  it("at every scale from 2^-16 to 2^16, judgeScaled counts what the whole check judged at that scale finds", () => {
-    // invented: a kiln-drift regressor averaged over 4 workers, so every weight gradient's sum across them is judged for
-    // overflow and for the share a division by 4 flushes (the bounds that stand in for those numbers below half a
-    // threshold, src/risk/hazards.ts, meet both sides of the thresholds over this range of scales)
-    const layers = Array.from({ length: 12 }, () => "  - { type: dense, width: 96, init: he-normal }\n  - relu").join("\n");
-    const text = `name: kiln-drift
+// invented: a kiln-drift regressor averaged over 4 workers, so every weight gradient's sum across them is judged for
+// overflow and for the share a division by 4 flushes (the bounds that stand in for those numbers below half a
+// threshold, src/risk/hazards.ts, meet both sides of the thresholds over scales from 2^-16 to 2^16)
+function kilnDrift(): NetworkSpec {
+  const layers = Array.from({ length: 12 }, () => "  - { type: dense, width: 96, init: he-normal }\n  - relu").join("\n");
+  const text = `name: kiln-drift
 input: { features: 96 }
 training:
   batch: 16
@@ -334,9 +334,14 @@ layers:
 ${layers}
   - { type: dense, width: 1 }
 `;
-    const parsed = parseSpec(text, "kiln-drift.yaml");
-    if (!parsed.ok) throw new Error("the kiln-drift spec does not load");
-    const spec = parsed.spec;
+  const parsed = parseSpec(text, "kiln-drift.yaml");
+  if (!parsed.ok) throw new Error("the kiln-drift spec does not load");
+  return parsed.spec;
+}
+
+describe("the scales the pick weighs are judged for their counts alone", () => {
+  it("at every scale from 2^-16 to 2^16, judgeScaled counts what the whole check judged at that scale finds", () => {
+    const spec = kilnDrift();
     const built = buildGraph(spec);
     if (!built.ok) throw new Error("the kiln-drift graph does not build");
     const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
@@ -356,6 +361,34 @@ ${layers}
       expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
     }
     // both sides of the gradient sums' thresholds were met: findings of both kinds at some scale
+    expect(kinds).toContain("gradient-sum-overflow");
+    expect(kinds).toContain("gradient-sum-flush");
+  });
+
+  it("from 2^16 down to 2^-16 on the same subjects, with a visitor reading kinds and severities alone, the counts are the whole check's", () => {
+    // judged from the largest scale down, a sum's overflow side shown quiet at one scale is taken as quiet at the next
+    // (src/risk/hazards.ts OVERFLOW_QUIET), and a KINDS_ONLY visitor gets shared records: neither may move a count
+    const spec = kilnDrift();
+    const built = buildGraph(spec);
+    if (!built.ok) throw new Error("the kiln-drift graph does not build");
+    const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
+    const order = Array.from({ length: subjects.sites.length + subjects.tensors.length }, (_, i) => i);
+    const kinds = new Set<string>();
+    for (let k = 16; k >= -16; k -= 2) {
+      const found: Counted = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
+      const visit = (f: { kind: string; severity: string }, _i: number, conditional: boolean): boolean => {
+        if (f.kind === "accumulation-error") return true;
+        kinds.add(f.kind);
+        if (f.severity === "fails") found.fails++;
+        else found.atRisk++;
+        if (OVERFLOW.includes(f.kind)) found.overflowSide++;
+        if (conditional) found.conditional++;
+        return true;
+      };
+      (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] = true;
+      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, visit);
+      expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
+    }
     expect(kinds).toContain("gradient-sum-overflow");
     expect(kinds).toContain("gradient-sum-flush");
   });
