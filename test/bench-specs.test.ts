@@ -16,7 +16,7 @@ describe("the benchmarks' generated 1,000-layer spec", () => {
 });
 
 describe("the build-comparison scripts", () => {
-  for (const script of ["check-time.mjs", "check-memory.mjs", "examples-time.mjs", "outputs.mjs"]) {
+  for (const script of ["check-time.mjs", "check-interleaved.mjs", "check-memory.mjs", "examples-time.mjs", "outputs.mjs"]) {
     it(`${script} loads and, given no builds, prints its usage and exits 2`, () => {
       const run = spawnSync(process.execPath, [`bench/compare/${script}`], { encoding: "utf8" });
       expect(run.status).toBe(2);
