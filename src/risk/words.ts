@@ -263,17 +263,7 @@ export class Words {
   }
 
   keep(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
-    // the words kept last become the ones before, and the older ones make room
-    this.swap();
-    const kept = this.front;
-    kept.a = a;
-    kept.b = b;
-    kept.c = c;
-    kept.x = x;
-    kept.y = y;
-    kept.z = z;
-    kept.extra = Number.NaN;
-    kept.text = flat(text);
+    this.keepPieces(a, b, c, x, y, z, flat(text));
   }
 
   /**
@@ -282,6 +272,7 @@ export class Words {
    * would copy every character of each for one or two sentences.
    */
   keepPieces(a: string, b: string, c: string, x: number, y: number, z: number, text: string): void {
+    // the words kept last become the ones before, and the older ones make room
     this.swap();
     const kept = this.front;
     kept.a = a;

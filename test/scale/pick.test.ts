@@ -340,24 +340,32 @@ ${layers}
 }
 
 describe("the scales the pick weighs are judged for their counts alone", () => {
-  it("at every scale from 2^-16 to 2^16, judgeScaled counts what the whole check judged at that scale finds", () => {
+  // the kiln-drift network's scaled subjects, every one in order, and a visitor that counts as src/scale/pick.ts does
+  function setup() {
     const spec = kilnDrift();
     const built = buildGraph(spec);
     if (!built.ok) throw new Error("the kiln-drift graph does not build");
     const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
     const order = Array.from({ length: subjects.sites.length + subjects.tensors.length }, (_, i) => i);
-    const kinds = new Set<string>();
+    return { spec, subjects, order, kinds: new Set<string>() };
+  }
+  function counter(found: Counted, kinds: Set<string>) {
+    return (f: { kind: string; severity: string }, _i: number, conditional: boolean): boolean => {
+      if (f.kind === "accumulation-error") return true;
+      kinds.add(f.kind);
+      if (f.severity === "fails") found.fails++;
+      else found.atRisk++;
+      if (OVERFLOW.includes(f.kind)) found.overflowSide++;
+      if (conditional) found.conditional++;
+      return true;
+    };
+  }
+
+  it("at every scale from 2^-16 to 2^16, judgeScaled counts what the whole check judged at that scale finds", () => {
+    const { spec, subjects, order, kinds } = setup();
     for (let k = -16; k <= 16; k += 2) {
       const found: Counted = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
-      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, (f, _i, conditional) => {
-        if (f.kind === "accumulation-error") return true;
-        kinds.add(f.kind);
-        if (f.severity === "fails") found.fails++;
-        else found.atRisk++;
-        if (OVERFLOW.includes(f.kind)) found.overflowSide++;
-        if (conditional) found.conditional++;
-        return true;
-      });
+      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, counter(found, kinds));
       expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
     }
     // both sides of the gradient sums' thresholds were met: findings of both kinds at some scale
@@ -368,23 +376,10 @@ describe("the scales the pick weighs are judged for their counts alone", () => {
   it("from 2^16 down to 2^-16 on the same subjects, with a visitor reading kinds and severities alone, the counts are the whole check's", () => {
     // judged from the largest scale down, a sum's overflow side shown quiet at one scale is taken as quiet at the next
     // (src/risk/hazards.ts OVERFLOW_QUIET), and a KINDS_ONLY visitor gets shared records: neither may move a count
-    const spec = kilnDrift();
-    const built = buildGraph(spec);
-    if (!built.ok) throw new Error("the kiln-drift graph does not build");
-    const subjects = scaledSubjects(spec, predictForCheck(built.graph, spec));
-    const order = Array.from({ length: subjects.sites.length + subjects.tensors.length }, (_, i) => i);
-    const kinds = new Set<string>();
+    const { spec, subjects, order, kinds } = setup();
     for (let k = 16; k >= -16; k -= 2) {
       const found: Counted = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
-      const visit = (f: { kind: string; severity: string }, _i: number, conditional: boolean): boolean => {
-        if (f.kind === "accumulation-error") return true;
-        kinds.add(f.kind);
-        if (f.severity === "fails") found.fails++;
-        else found.atRisk++;
-        if (OVERFLOW.includes(f.kind)) found.overflowSide++;
-        if (conditional) found.conditional++;
-        return true;
-      };
+      const visit = counter(found, kinds);
       (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] = true;
       judgeScaled(subjects, "binary16", 2 ** k, undefined, order, visit);
       expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
