@@ -121,6 +121,25 @@ export function energyBelowUpperClosed(profile: MagnitudeProfile): boolean {
     !isConstantLike(profile)
   );
 }
+/**
+ * log2 of a threshold below which {@link energyBelowUpper} is within `tolerance` (so, being an upper bound, is the share
+ * it bounds), for a profile that takes its closed form ({@link energyBelowUpperClosed}); −∞ for any other. Worked out
+ * once per profile instead of the closed form's four tails per threshold: E_z[min(1, c·e^{−m·z})] ≤ E_z[(c·e^{−m·z})^θ] =
+ * c^θ·e^{θ²m²/2} for every θ in [0, 1] (min(1, y) ≤ y^θ; Chernoff 1952), at the best θ = min(1, −ln c/m²) e^{E(ln c)} with
+ * E(L) = −L²/(2m²) for −m² ≤ L ≤ 0, else L + m²/2, rising in L; energyBelowUpper is at most twice its closed form (the rule's
+ * factor) and that form within 1e-6 of capMean, so 2·1.01·e^{E} ≤ tolerance suffices. The threshold is then the largest
+ * t whose ln c = ln(√(2/π)/3) + 3·ln(t/rms) reaches the L where E(L) = ln(tolerance/2.02), less a millionth of a binade
+ * for the rounding of ln(t/rms) and of this arithmetic (both far below it).
+ */
+export function energyBelowWithinLog2(profile: MagnitudeProfile, tolerance: number): number {
+  if (!energyBelowUpperClosed(profile) || !(tolerance > 0)) return -Infinity;
+  const m = 3 * profile.log2Spread * LN2;
+  const most = Math.log(tolerance / (2 * 1.01));
+  // the largest ln c with E(ln c) ≤ most (E is continuous at −m², where both forms give −m²/2)
+  const logC = most <= (-m * m) / 2 ? most - (m * m) / 2 : -m * Math.sqrt(-2 * most);
+  const log2T = Math.log2(profile.rms) + (logC - LOG_ENERGY_DENSITY) / (3 * LN2) - 1e-6;
+  return log2T === log2T ? log2T : -Infinity;
+}
 // settle.ts capMean, E_z[min(1, c·e^{−m·z})] = Φ(z*) + c·e^{m²/2}·Q(z* + m) (z* = ln(c)/m), from the fast tails of
 // _math.ts (relative error below 1.2e-7 each, hence the 3e-7 of room) instead of the accurate tail and its logarithm:
 // the factor c·e^{m²/2} taken whole, and capMean itself where it overflows

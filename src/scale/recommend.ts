@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DRAWS, energyBelowUpper, energyBelowUpperClosed, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
+import { DRAWS, energyBelowUpper, energyBelowUpperClosed, energyBelowWithinLog2, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
@@ -534,6 +534,16 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   flushedEnergyUpper(k: number): number {
     this.flushUppers(k);
     return Math.max(this.memo[this.m + FLUSH_START]!, this.memo[this.m + FLUSH_END]!);
+  }
+
+  // the exponent from which both profiles' energyBelowUpper is within the tolerance by its Chernoff bound (src/risk/
+  // bounds.ts energyBelowWithinLog2: a few operations per profile, once per search), ∞ where they do not take the closed
+  // form; the threshold flushBound·2^−k is exact, so log2 of it is log2 flushBound − k
+  flushedEnergyWithinFrom(tolerance: number): number {
+    const parts = this.parts;
+    let log2T = energyBelowWithinLog2(parts.start, tolerance);
+    if (!parts.same) log2T = Math.min(log2T, energyBelowWithinLog2(parts.end, tolerance));
+    return log2T === -Infinity ? Infinity : Math.log2(this.limits.flushBound) - log2T;
   }
 
   // where both profiles take energyBelowUpper's closed form (two normal tails, src/risk/bounds.ts) at every threshold: no

@@ -32,6 +32,12 @@ export interface ScaledTensorCurves {
    */
   flushedEnergyUpperFirst?: boolean;
   /**
+   * optional: an exponent from which flushedEnergy(k) ≤ tolerance at every k at or above it, by a bound worked out once
+   * per tensor for a few operations (∞ where there is none): the searches then take such a tensor as tolerated there
+   * without its bounds at k
+   */
+  flushedEnergyWithinFrom?(tolerance: number): number;
+  /**
    * optional upper bound on overflowRisk between the cheap bounds and overflowRiskUpper in cost and tightness: the
    * edge setter's scan asks for it before overflowRiskUpper (it only asks whether a tensor can reach a value found)
    */
@@ -279,6 +285,8 @@ class WindowSearch {
   private readonly growth: Float64Array;
   // per tensor 1 where its flushedEnergyUpper is asked before its cheap flush bounds (flushedEnergyUpperFirst)
   private readonly upperFirst: Uint8Array;
+  // per tensor its flushedEnergyWithinFrom at the search's tolerance (NaN until asked; ∞ where the curve has none)
+  private readonly withinFrom: Float64Array;
   // powerBase^d for d < POWERS (NaN until asked), the first growth offered (in practice every tensor's): the bound by the
   // growth is read here instead of raising it anew (Math.pow, ~50 ns) for each tensor and table; the same doubles, each
   // computed once
@@ -337,6 +345,7 @@ class WindowSearch {
     this.flushKnown = flushFrom === undefined ? flushKnowledge(this.n) : flushFrom.search.flushKnown;
     this.growth = new Float64Array(this.n);
     this.upperFirst = new Uint8Array(this.n);
+    this.withinFrom = new Float64Array(this.n).fill(NaN);
     for (let i = 0; i < this.n; i++) {
       if ((tensors[i] as ScaledTensorCurves).flushedEnergyUpperFirst === true) this.upperFirst[i] = 1;
       const g = (tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
@@ -952,6 +961,13 @@ class WindowSearch {
         highs[i] = 0;
         continue;
       }
+      // a flushed share within the tolerance by the curve's once-per-tensor bound: bounded by the tolerance, raising no
+      // floor (where the searches ask, k lies below the flush edge, so the largest share is above the tolerance and
+      // beats such a tensor without its bounds here)
+      if (curve === "flush" && this.surelyTolerated(k, i)) {
+        highs[i] = this.o.flushTolerance;
+        continue;
+      }
       let known = this.known(curve, k, i, table);
       if (known[1] === Infinity) {
         if (curve === "overflow") this.roughFirst(k, i, table);
@@ -1044,6 +1060,17 @@ class WindowSearch {
     return { id, value: best };
   }
 
+  // Whether tensor i's flushed share at k is within the tolerance by its curve's once-per-tensor bound (withinFrom)
+  private surelyTolerated(k: number, i: number): boolean {
+    let from = this.withinFrom[i] as number;
+    if (from !== from) {
+      const t = this.tensors[i] as ScaledTensorCurves;
+      from = t.flushedEnergyWithinFrom === undefined ? Infinity : t.flushedEnergyWithinFrom(this.o.flushTolerance);
+      this.withinFrom[i] = from;
+    }
+    return k >= from;
+  }
+
   // Whether one tensor's flushed share at k is within the tolerance, deciding by what is known of it (at k or, the
   // share falling with k, at other exponents) where it can.
   private tolerated(k: number, i: number, table = this.table("flush", k)): boolean {
@@ -1059,6 +1086,7 @@ class WindowSearch {
     const key = table.k;
     if ((this.flushKnown.untoleratedTo[i] as number) > key) ok = false;
     else if ((this.flushKnown.toleratedFrom[i] as number) < key) ok = true;
+    else if (this.surelyTolerated(k, i)) ok = true;
     if (ok === undefined) {
       const known = this.known("flush", k, i, table);
       if ((known[1] as number) <= tolerance) ok = true;

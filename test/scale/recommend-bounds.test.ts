@@ -5,7 +5,7 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
 import { energyBelow, lossScaleCurves, probabilityAnyAbove, type RangeLimits } from "../../src/risk/index.js";
-import { energyBelowBounds, energyBelowUpper, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../../src/risk/bounds.js";
+import { energyBelowBounds, energyBelowUpper, energyBelowWithinLog2, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../../src/risk/bounds.js";
 import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
 import { lossScaleWindow } from "../../src/scale/window.js";
 
@@ -126,6 +126,55 @@ describe("the Gaussian law's flushed-share upper bound", () => {
       ),
       { numRuns: 5000 },
     );
+  });
+});
+
+// The threshold below which the closed form is within a tolerance, from Chernoff's bound on it (E[min(1, Y)] ≤ E[Y^θ],
+// θ in [0, 1]; Chernoff 1952): held to the closed form and to the share as computed, at thresholds at and below it, and
+// to the share by its definition; the searches take a tensor as tolerated there without any bound at the threshold.
+describe("the flushed share's tolerated threshold", () => {
+  it("keeps the share as computed, and the closed form, within the tolerance at and below it", () => {
+    fc.assert(
+      fc.property(
+        fc.constantFrom("gaussian" as const, "half-gaussian" as const),
+        fc.oneof(fc.double({ min: 1e-3, max: 0.25, noNaN: true }), fc.double({ min: 0.25, max: 9, noNaN: true })),
+        fc.double({ min: -30, max: 30, noNaN: true }),
+        fc.constantFrom(1e-4, 1e-3, 1e-2, 0.1),
+        fc.double({ min: 0, max: 6, noNaN: true }),
+        (shape, log2Spread, rmsLog2, tolerance, below) => {
+          const p: MagnitudeProfile = { elements: 4096, zeroFraction: 0.5, shape, rms: 2 ** rmsLog2, log2Spread };
+          const log2T = energyBelowWithinLog2(p, tolerance);
+          expect(log2T).toBeGreaterThan(-Infinity);
+          const t = 2 ** (log2T - below);
+          expect(energyBelowUpper(p, t)).toBeLessThanOrEqual(tolerance);
+          expect(energyBelow(p, t)).toBeLessThanOrEqual(tolerance);
+        },
+      ),
+      { numRuns: 5000 },
+    );
+  });
+
+  it("holds the share by its definition within the tolerance there, and lies within a few binades of where it is reached", () => {
+    let checked = 0;
+    for (const log2Spread of [0.05, 0.5, 1, 2, 3, 4]) {
+      for (const tolerance of [1e-3, 1e-2]) {
+        const p: MagnitudeProfile = { elements: 65_536, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread };
+        const log2T = energyBelowWithinLog2(p, tolerance);
+        expect(energyShareByDefinition(2 ** log2T, 1, log2Spread)).toBeLessThanOrEqual(tolerance);
+        // not so loose as to decide nothing: the share reaches the tolerance within 4 binades above (a narrow spread's
+        // share grows eightfold per binade, a wide one's more slowly, where Chernoff's bound is looser)
+        expect(energyShareByDefinition(2 ** (log2T + 4), 1, log2Spread)).toBeGreaterThan(tolerance);
+        checked++;
+      }
+    }
+    expect(checked).toBe(12);
+  });
+
+  it("is −∞ for a law the closed form does not take", () => {
+    for (const s of SHAPES.filter((x) => x.shape !== "gaussian" && x.shape !== "half-gaussian")) {
+      expect(energyBelowWithinLog2({ elements: 256, zeroFraction: 0, rms: 1, log2Spread: 1, ...s }, 1e-3)).toBe(-Infinity);
+    }
+    expect(energyBelowWithinLog2({ elements: 256, zeroFraction: 0, shape: "gaussian", rms: 1, log2Spread: 0 }, 1e-3)).toBe(-Infinity);
   });
 });
 
