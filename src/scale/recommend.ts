@@ -568,6 +568,8 @@ const PAIR = new Float64Array(2);
 // one profile's quick moment bounds (BoundedCurves.quickOf)
 const QUICK = new Float64Array(2);
 
+// the tensors whose shifted-tail constants a horizon point makes at once (HorizonPoint.makeShifts)
+const SHIFT_BLOCK = 128;
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing
@@ -842,8 +844,10 @@ class HorizonPoint {
   // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
   // (bound −∞ where the law has none of these bounds; slope, up and down: shiftBoundsGridded's arguments as log2 t·slope
   // + up and + down, the other numbers for shiftBounds where those are not numbers)
+  // (made for the tensors below `made`, in blocks as the sweeps reach them: a sweep that stops early, its overflow
+  // certain, leaves the rest unmade)
   private shifts:
-    | { rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array; slope: Float64Array; up: Float64Array; down: Float64Array }
+    | { made: number; rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array; slope: Float64Array; up: Float64Array; down: Float64Array }
     | undefined;
 
   /**
@@ -853,8 +857,13 @@ class HorizonPoint {
    * theirs (within far less than the billionth of a binade each level is moved outward by). In the same pass `live`
    * keeps only the tensors whose upper bound is above 2^−54 (the number kept is returned), and `into` gets the products
    * Π(1 − low) and Π(1 − high) over them in their order, and 1 where one of them is not integrated (0 otherwise).
+   * The pass stops once the product of the lows so far, widened by `widen` as OverflowNarrowing.boundBy takes it, makes
+   * the lower bound on the overflow probability 1 (the product of the rest, each factor at most 1, only lowers it, so
+   * the whole pass would give 1 too, and with it every step's answer at this scale and point): the tensors not reached
+   * keep their bounds and stay live after the kept ones, Π(1 − high) is then reported as 0 (an upper bound of 1) and
+   * one of them as not integrated.
    */
-  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number, into: Float64Array): number {
+  sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number, into: Float64Array, widen: number): number {
     const c = this.shifts ?? this.shiftConstants();
     let kept = 0;
     let noneHigh = 1;
@@ -862,6 +871,7 @@ class HorizonPoint {
     let waiting = 0;
     for (let k = 0; k < count; k++) {
       const i = live[k]!;
+      if (i >= c.made) this.makeShifts(c, i);
       const integrated = state[i] === 2;
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is (and one
       // whose law has no such bounds: its bound is −∞ here)
@@ -880,6 +890,13 @@ class HorizonPoint {
       if (!integrated) waiting = 1;
       noneHigh *= 1 - lows[i]!;
       noneLow *= 1 - high;
+      if (1 - (noneHigh * (1 + widen) + 1e-300) >= 1 && k + 1 < count) {
+        live.copyWithin(kept, k + 1, count);
+        into[0] = noneHigh;
+        into[1] = 0;
+        into[2] = 1;
+        return kept + count - k - 1;
+      }
     }
     into[0] = noneHigh;
     into[1] = noneLow;
@@ -890,6 +907,7 @@ class HorizonPoint {
   private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
     const n = this.n;
     const c = {
+      made: 0,
       rmsLog2: new Float64Array(n),
       spread: new Float64Array(n),
       high: new Float64Array(n),
@@ -900,11 +918,18 @@ class HorizonPoint {
       up: new Float64Array(n),
       down: new Float64Array(n),
     };
+    this.shifts = c;
+    return c;
+  }
+
+  // the shifted tails' constants of the tensors from c.made to past `at` (a block of SHIFT_BLOCK, or the rest)
+  private makeShifts(c: NonNullable<HorizonPoint["shifts"]>, at: number): void {
     const p = this.progress;
     const ends = this.ends.made();
     // the law, count and bound of the profile here: the end's at the end, else the start's (profileBetween)
     const side = p >= 1 ? 1 : 0;
-    for (let i = 0; i < n; i++) {
+    const to = Math.min(this.n, Math.max(at + 1, c.made + SHIFT_BLOCK));
+    for (let i = c.made; i < to; i++) {
       const j = 2 * i + side;
       if (ends.ok[j] === 0) continue;
       let rmsLog2: number;
@@ -937,8 +962,7 @@ class HorizonPoint {
       c.up[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
       c.down[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
     }
-    this.shifts = c;
-    return c;
+    c.made = to;
   }
 
   // per tensor here: what the moment bounds take of its profile (src/scale/overflow-enclosure.ts enclosureWith), each
@@ -1201,7 +1225,7 @@ class OverflowNarrowing implements OverflowBounds {
       // tails): enough for most; the rest are then ordered by what they leave open
       // (thinning the live list and taking the products update() would take over it, in the same pass)
       this.sweepPending = false;
-      this.liveCount = this.point.sweep(this.levelLog2, this.lows, highs, this.state, this.live, this.liveCount, SWEPT);
+      this.liveCount = this.point.sweep(this.levelLog2, this.lows, highs, this.state, this.live, this.liveCount, SWEPT, this.widen());
       if (SWEPT[2] === 1) this.heapPending = true;
       swept = true;
     } else {
@@ -1305,9 +1329,14 @@ class OverflowNarrowing implements OverflowBounds {
     this.boundBy(noneHigh, noneLow);
   }
 
+  // the relative widening of the products for their rounding, as update() describes
+  private widen(): number {
+    return 4 * (this.point.n + 2) * 2 ** -53;
+  }
+
   // low and high from the products Π(1 − low_i) (noneHigh) and Π(1 − high_i) (noneLow), as update() describes
   private boundBy(noneHigh: number, noneLow: number): void {
-    const widen = 4 * (this.point.n + 2) * 2 ** -53;
+    const widen = this.widen();
     this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));

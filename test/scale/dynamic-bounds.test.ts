@@ -107,6 +107,43 @@ describe("the dynamic-scale model's bounds", () => {
     expect(flushes).toBeLessThan(3 * scales.length);
   });
 
+  it("stay exact where a few tensors at the front make an overflow certain, before the rest are bounded", () => {
+    // four Gaussian tensors far above the overflow level first (each P(any above) all but 1), then many far below it:
+    // the first pass's product of the lows reaches 1 after the few, and the rest keep the bounds they came with
+    const many: TensorPrediction[] = gradients(120).map((t, i) => {
+      if (i >= 4) return t;
+      const loud: MagnitudeProfile = { elements: 65_536, zeroFraction: 0, shape: "gaussian", rms: 2 ** 20, log2Spread: 0.3 };
+      return { ...t, start: loud, end: loud };
+    });
+    const directMany = (scale: number, progress: number): number => {
+      let none = 1;
+      for (const t of many) none *= 1 - probabilityAnyAbove(profileAt(t, progress), limits.overflowLevel / scale);
+      return 1 - none;
+    };
+    const model = dynamicModel(many, limits, DEFAULT_WINDOW_OPTIONS);
+    let certainEarly = 0;
+    // from the top down, each narrowing starting from the one above it, which may have stopped its pass early
+    for (const progress of [0, 0.5]) {
+      for (let log2 = 8; log2 >= -8; log2 -= 4) {
+        const scale = 2 ** log2;
+        const exact = directMany(scale, progress);
+        const b = model.overflowBounds!(scale, progress);
+        b.narrow(1);
+        if (!b.exact) b.narrow(1);
+        if (b.low >= 1 && !b.exact) certainEarly++;
+        for (let step = 0; !b.exact; step++) {
+          expect(b.low).toBeLessThanOrEqual(exact);
+          expect(b.high).toBeGreaterThanOrEqual(exact);
+          b.narrow();
+          expect(step).toBeLessThan(10_000);
+        }
+        expect(Math.abs(b.low - exact)).toBeLessThanOrEqual(1e-13);
+        expect(b.low).toBe(model.overflowProbability(scale, progress));
+      }
+    }
+    expect(certainEarly).toBeGreaterThan(0);
+  });
+
   it("give a simulation identical to one with the probability computed directly", () => {
     for (const seed of [1, 2, 3]) {
       const bounded = dynamicModel(tensors, limits, DEFAULT_WINDOW_OPTIONS);
