@@ -134,11 +134,19 @@ export function energyBelowUpperClosed(profile: MagnitudeProfile): boolean {
  */
 export function energyBelowWithinLog2(profile: MagnitudeProfile, tolerance: number): number {
   if (!energyBelowUpperClosed(profile) || !(tolerance > 0)) return -Infinity;
-  const m = 3 * profile.log2Spread * LN2;
+  return energyBelowWithinLog2Of(Math.log2(profile.rms), profile.log2Spread, tolerance);
+}
+/**
+ * {@link energyBelowWithinLog2} from log2 of the rms and the spread, for a law the closed form takes at them: rising in
+ * the rms and falling in the spread (E rises with m at every L ≤ 0, being the least over θ of θL + θ²m²/2), so the
+ * threshold of a smaller rms and a wider spread holds for the profile itself.
+ */
+export function energyBelowWithinLog2Of(rmsLog2: number, log2Spread: number, tolerance: number): number {
+  const m = 3 * log2Spread * LN2;
   const most = Math.log(tolerance / (2 * 1.01));
   // the largest ln c with E(ln c) ≤ most (E is continuous at −m², where both forms give −m²/2)
   const logC = most <= (-m * m) / 2 ? most - (m * m) / 2 : -m * Math.sqrt(-2 * most);
-  const log2T = Math.log2(profile.rms) + (logC - LOG_ENERGY_DENSITY) / (3 * LN2) - 1e-6;
+  const log2T = rmsLog2 + (logC - LOG_ENERGY_DENSITY) / (3 * LN2) - 1e-6;
   return log2T === log2T ? log2T : -Infinity;
 }
 // settle.ts capMean, E_z[min(1, c·e^{−m·z})] = Φ(z*) + c·e^{m²/2}·Q(z* + m) (z* = ln(c)/m), from the fast tails of

@@ -5,7 +5,7 @@
 import { getFormat } from "../formats/index.js";
 import type { FormatName } from "../formats/names.js";
 import type { MagnitudeProfile, Prediction, TensorPrediction } from "../magnitude/types.js";
-import { DRAWS, energyBelowUpper, energyBelowUpperClosed, energyBelowWithinLog2, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
+import { DRAWS, energyBelowUpper, energyBelowUpperClosed, energyBelowWithinLog2, energyBelowWithinLog2Of, probabilityAnyAboveBounds, probabilityAnyAboveUpper, ProfileDrawBounds } from "../risk/bounds.js";
 import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
@@ -693,6 +693,7 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
   const n = gradients.length;
   const out = new Uint8Array(n);
   const inside = 1 - INNER_DRAW_OUTSIDE;
+  const tLog2 = Math.log2(t);
   for (let i = 0; i < n; i++) {
     const { start, end } = gradients[i]!;
     const shape = start.shape;
@@ -704,6 +705,15 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
     const l0 = Math.log2(start.rms);
     // profileBetween keeps the start's rms where the end's is not positive
     const l1 = end.rms > 0 ? Math.log2(end.rms) : l0;
+    // first Chernoff's bound on the closed form's share (src/risk/bounds.ts energyBelowWithinLog2Of), at the smaller
+    // rms and the wider spread of the two ends (each point's log2 rms and spread lie between the ends', a billionth of
+    // a binade and a trillionth of the spread given for their rounding): within the tolerance at t and every threshold
+    // below it at every point before the end, a Gaussian law without a bound taking the closed form there (its rms
+    // positive, its spread positive before the end)
+    if (Number.isFinite(l0) && Number.isFinite(l1) && tLog2 <= energyBelowWithinLog2Of(Math.min(l0, l1) - 1e-9, Math.max(s0, s1) * (1 + 1e-12), tolerance)) {
+      out[i] = 1;
+      continue;
+    }
     const law = elementLaw(start);
     const limit = tolerance * (1 - 1e-9);
     // the inner draw's bound first: where it passes, so does the smaller of the two (rounding keeps the order), and the
