@@ -128,9 +128,9 @@ export function energyBelowUpperClosed(profile: MagnitudeProfile): boolean {
  * c^θ·e^{θ²m²/2} for every θ in [0, 1] (min(1, y) ≤ y^θ; Chernoff 1952), which at the best θ = min(1, −ln c/m²) is
  * e^{E(ln c)} with E(L) = −L²/(2m²) for −m² ≤ L ≤ 0, else L + m²/2, rising in L; energyBelowUpper is at most twice its
  * closed form (the rule's factor) and that form within 1e-6 of capMean, so 2·1.01·e^{E} ≤ tolerance suffices. The
- * threshold is then the largest
- * t whose ln c = ln(√(2/π)/3) + 3·ln(t/rms) reaches the L where E(L) = ln(tolerance/2.02), less a millionth of a binade
- * for the rounding of ln(t/rms) and of this arithmetic (both far below it).
+ * threshold is then the largest t whose ln c = ln(√(2/π)/3) + 3·ln(t/rms) reaches the L where E(L) =
+ * ln(tolerance/2.02), less a millionth of a binade for the rounding of ln(t/rms) and of this arithmetic (both far below
+ * it).
  */
 export function energyBelowWithinLog2(profile: MagnitudeProfile, tolerance: number): number {
   if (!energyBelowUpperClosed(profile) || !(tolerance > 0)) return -Infinity;
