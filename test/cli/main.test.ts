@@ -1,6 +1,6 @@
 import { spawnSync } from "node:child_process";
 import { describe, expect, it } from "vitest";
-import { CHILD_TIMEOUT_MS, finished, runCli } from "../helpers/run.js";
+import { runCli, spawnFinished } from "../helpers/run.js";
 
 describe("headroom (the built binary)", () => {
   it("prints usage for --help and exits 0", () => {
@@ -19,7 +19,7 @@ describe("headroom (the built binary)", () => {
   });
 
   it("runs when dist/cli/main.js is the script itself, once", () => {
-    const run = finished(spawnSync(process.execPath, ["dist/cli/main.js", "--version"], { encoding: "utf8", timeout: CHILD_TIMEOUT_MS, killSignal: "SIGKILL" }), ["node dist/cli/main.js --version"]);
+    const run = spawnFinished((timeout) => spawnSync(process.execPath, ["dist/cli/main.js", "--version"], { encoding: "utf8", timeout, killSignal: "SIGKILL" }), ["node dist/cli/main.js --version"]);
     const viaBin = runCli(["--version"]);
     expect(run.status).toBe(0);
     expect(run.stdout).toBe(viaBin.stdout);

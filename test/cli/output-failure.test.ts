@@ -8,7 +8,7 @@ import { spawnSync } from "node:child_process";
 import { closeSync, openSync } from "node:fs";
 import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
-import { BIN, CHILD_TIMEOUT_MS, finished, ROOT } from "../helpers/run.js";
+import { BIN, ROOT, spawnFinished } from "../helpers/run.js";
 import { encode, npyBytes, scratch } from "../measure/writers.js";
 
 const files = scratch();
@@ -18,15 +18,16 @@ const gains = files.write("gains.npy", npyBytes(1, "<f4", [4], encode("F32", [1,
 function runIntoFullDevice(args: readonly string[]): { status: number | null; stderr: string } {
   const full = openSync("/dev/full", "w");
   try {
-    const run = finished(
-      spawnSync(process.execPath, [BIN, ...args], {
-        cwd: ROOT,
-        stdio: ["ignore", full, "pipe"],
-        encoding: "utf8",
-        env: { ...process.env, FORCE_COLOR: "0", NO_COLOR: "1" },
-        timeout: CHILD_TIMEOUT_MS,
-        killSignal: "SIGKILL",
-      }),
+    const run = spawnFinished(
+      (timeout) =>
+        spawnSync(process.execPath, [BIN, ...args], {
+          cwd: ROOT,
+          stdio: ["ignore", full, "pipe"],
+          encoding: "utf8",
+          env: { ...process.env, FORCE_COLOR: "0", NO_COLOR: "1" },
+          timeout,
+          killSignal: "SIGKILL",
+        }),
       ["headroom", ...args, "> /dev/full"],
     );
     return { status: run.status, stderr: run.stderr };
