@@ -18,18 +18,14 @@
 import { performance } from "node:perf_hooks";
 import { fileURLToPath } from "node:url";
 import { child, loadBuild, options, threadMs, WARM_UP_CHECKS } from "./measure.mjs";
-import { mlpSpec } from "./specs.mjs";
+import { mlpVariant } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
 const argv = process.argv.slice(2);
 if (argv[0] === "--round") {
   const [, baseDist, newDist, calls, growth, round] = argv;
   const builds = [(await loadBuild(baseDist)).check, (await loadBuild(newDist)).check];
-  const variant = (i) => {
-    const spec = mlpSpec(1 + (i + 1000 * Number(round)) * 2 ** -20);
-    spec.training.horizon.weightGrowth = Number(growth);
-    return spec;
-  };
+  const variant = (i) => mlpVariant(i, Number(round), Number(growth));
   for (let i = 0; i < WARM_UP_CHECKS; i++) for (const check of builds) check(variant(500 + i));
   const wall = [0, 0];
   const thread = [0, 0];

@@ -13,17 +13,13 @@ import { Session } from "node:inspector/promises";
 import { constants, PerformanceObserver } from "node:perf_hooks";
 import { fileURLToPath } from "node:url";
 import { alternating, child, loadBuild, options, WARM_UP_CHECKS } from "./measure.mjs";
-import { mlpSpec } from "./specs.mjs";
+import { mlpVariant } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
 const argv = process.argv.slice(2);
 
 function variants(calls, growth, round) {
-  const variant = (i) => {
-    const spec = mlpSpec(1 + (i + 1000 * round) * 2 ** -20);
-    spec.training.horizon.weightGrowth = growth;
-    return spec;
-  };
+  const variant = (i) => mlpVariant(i, round, growth);
   return { warm: Array.from({ length: WARM_UP_CHECKS }, (_, i) => variant(500 + i)), specs: Array.from({ length: calls }, (_, i) => variant(i + 1)) };
 }
 

@@ -11,18 +11,14 @@
  */
 import { fileURLToPath } from "node:url";
 import { alternating, child, loadBuild, options, threadMs, WARM_UP_CHECKS } from "./measure.mjs";
-import { mlpSpec } from "./specs.mjs";
+import { mlpVariant } from "./specs.mjs";
 
 const self = fileURLToPath(import.meta.url);
 const argv = process.argv.slice(2);
 if (argv[0] === "--round") {
   const [, dist, calls, growth, round] = argv;
   const { check } = await loadBuild(dist);
-  const variant = (i) => {
-    const spec = mlpSpec(1 + (i + 1000 * Number(round)) * 2 ** -20);
-    spec.training.horizon.weightGrowth = Number(growth);
-    return spec;
-  };
+  const variant = (i) => mlpVariant(i, Number(round), Number(growth));
   for (let i = 0; i < WARM_UP_CHECKS; i++) check(variant(500 + i));
   const specs = Array.from({ length: Number(calls) }, (_, i) => variant(i + 1));
   const start = threadMs();

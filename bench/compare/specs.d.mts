@@ -5,3 +5,6 @@ export function base(name: string, layers: LayerSpec[], input: NetworkSpec["inpu
 
 /** 500 dense + ReLU pairs of width 256 (He initialisation, biases); `inputScale` moves every magnitude a little. */
 export function mlpSpec(inputScale?: number): NetworkSpec;
+
+/** The comparison scripts' fresh 1,000-layer spec: variant `i` of round `round`, with weight growth `growth`. */
+export function mlpVariant(i: number, round: number, growth: number): NetworkSpec;

@@ -40,3 +40,13 @@ export function mlpSpec(inputScale = 1) {
   }
   return base("mlp-1000", layers, { kind: "features", features: 256, positions: 1, scale: inputScale }, { kind: "mean-squared-error", reduction: "mean", targetScale: 1 });
 }
+
+/**
+ * The comparison scripts' fresh 1,000-layer spec: variant `i` of round `round` (input scale moved by
+ * (i + 1000·round)·2^-20, so no two calls of a process check the same spec) with weight growth `growth` over the horizon.
+ */
+export function mlpVariant(i, round, growth) {
+  const spec = mlpSpec(1 + (i + 1000 * round) * 2 ** -20);
+  spec.training.horizon.weightGrowth = growth;
+  return spec;
+}

@@ -592,15 +592,9 @@ function belowNormalAtLeast(side: Side, limits: RangeLimits): number {
 // Simpson rule's error near spread 2.5 (1e-5, DEVELOPERS.md "Draw integrals")
 const FLUSHED_MARGIN = 1e-3;
 
-/**
- * The mark of a judgeScaled visitor (src/risk/judge.ts) that reads only each finding's kind and severity (besides the
- * subject's index and the condition it is given): the loss-scale pick's counts (src/scale/pick.ts). Its tensors' findings
- * are then one shared record per kind and severity (kindOnly), without the values: a weighed scale's thousands of
- * findings make no object each, and no noise is worked out for a value never read.
- */
-export const KINDS_ONLY: unique symbol = Symbol("kinds only");
-
-// countedFindings' finding for a KINDS_ONLY visitor: the decision's record of the kind (at `slot`, its failing one next)
+// countedFindings' finding for a caller that reads only its kind and severity (judgeScaled's `kindsOnly`: the loss-scale
+// pick's counts), one shared record per kind and severity without the values, so a weighed scale's thousands of findings
+// make no object each and no noise is worked out for a value never read: the decision's record of the kind (at `slot`, its failing one next)
 // and severity, its value and threshold NaN and its subject empty (none of them read)
 function kindOnly(d: FormatDecision, slot: number, kind: FindingKind, severity: Exclude<Verdict, "fits">): Finding {
   const i = severity === "fails" ? slot + 1 : slot;
@@ -628,7 +622,7 @@ function counted(subject: string, d: FormatDecision, kind: FindingKind, severity
  * needs: no statistics (the footroom), and no overflow integral or share that a bound keeps under its threshold. Puts
  * them at the start of FOUND (src/risk/tensor-finding.ts) and returns their count; −1 where the bounds do not read the
  * law (a tensor judged from its numbers then). `start`, `end` and `factor` as {@link decidedFindings} takes them;
- * `kindsOnly` for a visitor marked {@link KINDS_ONLY} (shared records, kindOnly).
+ * `kindsOnly` where only each finding's kind and severity will be read (shared records, kindOnly).
  */
 export function countedFindings(
   tensor: TensorPrediction,

@@ -51,6 +51,17 @@ export interface HazardContext {
    * an empty list is one shared frozen array, and the check itself a record the next count-only call writes over
    */
   countOnly?: boolean;
+  /**
+   * for a count: the site's overflow side was shown quiet at a larger loss scale, so its gradient sums' and gradient
+   * accumulation's overflow tests are taken as passed (the same numbers: see {@link shownAtEveryLower}); set per site by
+   * judge.ts judgeScaled
+   */
+  overflowQuietKnown?: boolean;
+  /**
+   * for a count: left true by a site whose overflow tests all passed by tests exactly monotone in the scale, which
+   * judgeScaled then carries to every smaller scale; set false by any other (judgeScaled sets it true before each site)
+   */
+  overflowQuietShown?: boolean;
 }
 
 type HeldIn = HazardEvaluation["heldIn"];
@@ -983,21 +994,21 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
   const counting = context.countOnly === true;
   let scaled: MagnitudeProfile | null = null;
   let overflow = 0;
-  // a count whose overflow side a larger scale showed quiet (OVERFLOW_QUIET) takes both tests below as passed
-  const known = counting && OVERFLOW_QUIET.known;
+  // a count whose overflow side a larger scale showed quiet takes both tests below as passed
+  const known = counting && context.overflowQuietKnown === true;
   if (known) {
     // (both bounds passed: the overflow 0 and nothing scaled, as the tests below leave it)
   } else if (!(counting && sumFarBelow(input, level / lossScale, terms))) {
-    OVERFLOW_QUIET.shown = false;
+    context.overflowQuietShown = false;
     scaled = scaledIn(TERMS_SCALED, input, lossScale);
     overflow = partialSumsOverflow(scaled, terms, level, false);
   }
   if (!known && output !== undefined && overflow < 1) {
     if (!(counting && anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2))) {
-      OVERFLOW_QUIET.shown = false;
+      context.overflowQuietShown = false;
       const sum = scaledIn(SUM_SCALED, output, lossScale);
       if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
-    } else if (!shownAtEveryLower(output)) OVERFLOW_QUIET.shown = false;
+    } else if (!shownAtEveryLower(output)) context.overflowQuietShown = false;
   }
   let lost = 0;
   if (!(counting && energyBelowAtMost(input, flushBound / lossScale, Math.min(t.energyAtRisk, t.energyFails) / 2))) {
@@ -1266,15 +1277,15 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   const startSum = site.output !== undefined ? site.output : site.input;
   // as summedIn scales it: the predicted sum by the loss scale, else one contribution by the loss scale times the terms
   const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
-  // a side's overflow 0 where a larger scale showed the site's quiet (OVERFLOW_QUIET), as the bound then gives it
-  const known = OVERFLOW_QUIET.known;
-  grade(known ? 0 : countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound), overflowAtRisk, t.overflowFails, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, level / lossScale);
+  // a side's overflow 0 where a larger scale showed the site's quiet, as the bound then gives it
+  const known = context.overflowQuietKnown === true;
+  grade(known ? 0 : countedSumOverflow(START_SUMMED, startSum, startFactor, level, overflowBound, context), overflowAtRisk, t.overflowFails, startFactor === 1 ? startSum.rms : startSum.rms * startFactor, level / lossScale);
   putGraded(start, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   if (sides) {
     const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
     const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
     const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
-    grade(known ? 0 : countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound), overflowAtRisk, t.overflowFails, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, level / lossScale);
+    grade(known ? 0 : countedSumOverflow(END_SUMMED, endSum, endFactor, level, overflowBound, context), overflowAtRisk, t.overflowFails, endFactor === 1 ? endSum.rms : endSum.rms * endFactor, level / lossScale);
     putGraded(end, limits, "gradientSums", "overflow-risk", "gradient-sum-overflow", false, GRADIENT_SUM_OVERFLOW, false);
   }
   if (context.workerGradients === "average" && context.workers > 1) {
@@ -1296,30 +1307,29 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
 }
 
 // a summed side's overflow probability where only its finding counts (no scale factors): 0 where the bound keeps it at
-// most `bound`, else that of `sum` times `factor`, scaled into `slot`
-function countedSumOverflow(slot: MagnitudeProfile, sum: MagnitudeProfile, factor: number, level: number, bound: number): number {
+// most `bound`, else that of `sum` times `factor`, scaled into `slot` (the context's overflowQuietShown kept as it is
+// only where the bound shows it at every smaller scale)
+function countedSumOverflow(slot: MagnitudeProfile, sum: MagnitudeProfile, factor: number, level: number, bound: number, context: HazardContext): number {
   if (anyAboveAtMost(sum, level / factor, nonzeroElements(sum), bound)) {
-    if (!shownAtEveryLower(sum)) OVERFLOW_QUIET.shown = false;
+    if (!shownAtEveryLower(sum)) context.overflowQuietShown = false;
     return 0;
   }
-  OVERFLOW_QUIET.shown = false;
+  context.overflowQuietShown = false;
   return probabilityAnyAbove(scaledIn(slot, sum, factor), level);
 }
 
 /**
- * A count's overflow side of a gradient sum or a gradient's accumulation (countedSums, gradientAccumulation) shown
- * quiet at one loss scale is quiet at every smaller one: each of its bounds reads the level over the scale (t = level/L,
+ * Whether anyAboveBounded's last pass holds at every larger level for the profile, so a count's overflow side of a
+ * gradient sum or a gradient's accumulation (countedSums, gradientAccumulation) shown quiet at one loss scale is quiet
+ * at every smaller one (HazardContext.overflowQuietShown): each of its bounds reads the level over the scale (t = level/L,
  * or level/(L·terms)), which a smaller L leaves at least as large (a rounded division or product is monotone in each
  * operand), and each test it passed passes for a larger t: sumFarBelow's two quotients of t by a number of the profile
  * alone, and anyAboveBounded's test without its exponential or logarithm (t/rms times an exact power of two, squared,
  * against a number of p and the spread alone), for a profile with no bound (with one, a larger t may reach it, where
  * the Gaussian law no longer holds). The test with its exponential and logarithm is not taken as shown (Math.log's
- * monotony is not part of its definition). judge.ts judgeScaled sets `known` for a site a larger scale showed quiet
- * (then every such test counts as passed: the same numbers), and reads `shown` after each site it judges.
+ * monotony is not part of its definition). judge.ts judgeScaled sets overflowQuietKnown for a site a larger scale
+ * showed quiet (then every such test counts as passed: the same numbers), and reads overflowQuietShown after each site.
  */
-export const OVERFLOW_QUIET = { known: false, shown: true };
-
-// whether anyAboveBounded's last pass holds at every larger level for the profile (see OVERFLOW_QUIET)
 function shownAtEveryLower(profile: MagnitudeProfile): boolean {
   return boundedQuick && (profile.bound === undefined || !(profile.bound > 0));
 }
@@ -1476,7 +1486,7 @@ let atMostP = Number.NaN;
 let atMostAt = 0;
 let atMostN = Number.NaN;
 let atMostLogN = Number.NaN;
-// whether anyAboveBounded's last true came from its test without an exponential or a logarithm (OVERFLOW_QUIET)
+// whether anyAboveBounded's last true came from its test without an exponential or a logarithm (shownAtEveryLower)
 let boundedQuick = false;
 // per binade of p, 2^k for k = 0, −1, …, −99: z₀, ln φ(z₀) and ln(2^k/2), filled as asked (NaN until then)
 const AT_MOST = new Float64Array(300).fill(Number.NaN);

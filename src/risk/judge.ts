@@ -20,7 +20,7 @@ import { lossScaleProblem } from "../spec/limits.js";
 import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { evaluateHazard, evaluateSite, OVERFLOW_QUIET, type HazardContext } from "./hazards.js";
+import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
 import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
@@ -36,7 +36,7 @@ import {
   type TensorRiskOptions,
   type TensorStatistics,
 } from "./tensor.js";
-import { countedFindings, decidedFindings, FormatDecision, KINDS_ONLY } from "./decide.js";
+import { countedFindings, decidedFindings, FormatDecision } from "./decide.js";
 import { FOUND, NO_FINDINGS } from "./tensor-finding.js";
 import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -465,7 +465,9 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
  * where an implementation keeps the value in the activation format, {@link isConditionalFinding}), and returns false to
  * stop: a caller comparing scales stops one once it cannot do better. The findings are made to be counted: their
  * numbers are judgePrediction's, but no sentence is written (a weighed scale's thousands of findings are never told),
- * and a tensor's finding decided by bounds (src/risk/decide.ts countedFindings) carries no moment (`at`).
+ * and a tensor's finding decided by bounds (src/risk/decide.ts countedFindings) carries no moment (`at`). `kindsOnly`:
+ * the visitor reads only each finding's kind and severity (besides the subject's index and the condition), so the
+ * tensors' findings may be shared records without values or subject (the loss-scale pick's counts).
  */
 export function judgeScaled(
   subjects: ScaledSubjects,
@@ -474,6 +476,7 @@ export function judgeScaled(
   thresholds: Partial<RiskThresholds> | undefined,
   order: readonly number[],
   visit: (finding: CountedFinding, subject: number, conditional: boolean) => boolean,
+  kindsOnly = false,
 ): void {
   const complete = thresholdsOf(thresholds === undefined ? DEFAULT_THRESHOLDS : { ...DEFAULT_THRESHOLDS, ...thresholds });
   const settings = formatSettings(subjects.spec.precision, [format], complete);
@@ -484,8 +487,6 @@ export function judgeScaled(
   let context: HazardContext | undefined;
   const sites = subjects.sites.length;
   const memo = scaledMemo(subjects, format, complete);
-  // a visitor that reads only kinds and severities gets the tensors' findings as shared records (decide.ts KINDS_ONLY)
-  const kindsOnly = (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] === true;
   const quiet = memo.scales;
   // indexed loops: an iterator's result objects are a heap allocation per subject where the loop is not optimized
   for (let o = 0; o < order.length; o++) {
@@ -496,14 +497,13 @@ export function judgeScaled(
         context = hazardContext(subjects.spec, setting.evaluated, lossScale, complete, subjects.weightGradients);
         context.countOnly = true;
       }
-      // a site whose overflow side a scale at least this large showed quiet has it quiet here (hazards.ts OVERFLOW_QUIET)
+      // a site whose overflow side a scale at least this large showed quiet has it quiet here (overflowQuietKnown)
       const shows = site.kind === "gradient-sum" || (site.kind === "accumulation" && site.gradient === true);
       const knownAbove = quiet[i] as number;
-      OVERFLOW_QUIET.known = shows && lossScale <= knownAbove;
-      OVERFLOW_QUIET.shown = true;
+      context.overflowQuietKnown = shows && lossScale <= knownAbove;
+      context.overflowQuietShown = true;
       const checked = evaluateHazard(site, context, origin);
-      if (shows && OVERFLOW_QUIET.shown && lossScale > knownAbove) quiet[i] = lossScale;
-      OVERFLOW_QUIET.known = false;
+      if (shows && context.overflowQuietShown && lossScale > knownAbove) quiet[i] = lossScale;
       const loss = site.kind === "loss-value";
       const findings = checked.findings;
       for (let k = 0; k < findings.length; k++) {
@@ -542,7 +542,7 @@ export function judgeScaled(
 /**
  * What judgeScaled keeps of scaled subjects between its calls (a weighing counts the same subjects at several scales),
  * for the format and thresholds they were last counted in: per site, the largest loss scale at which its overflow side
- * was shown quiet (0: none; src/risk/hazards.ts OVERFLOW_QUIET), quiet at every smaller one. The subjects are made once
+ * was shown quiet (0: none; HazardContext.overflowQuietShown), quiet at every smaller one. The subjects are made once
  * and not changed (ScaledSubjects).
  */
 interface ScaledMemo {
@@ -569,7 +569,7 @@ function sameThresholds(a: RiskThresholds, b: RiskThresholds): boolean {
 
 // A tensor's counted findings in a setting that holds it (src/risk/decide.ts countedFindings, into FOUND), or −1 where
 // judgeTensor judges it: a part of a stored array, a probability row, scale factors, a law the bounds do not read;
-// `kindsOnly` for a visitor that reads only kinds and severities (decide.ts KINDS_ONLY)
+// `kindsOnly` as judgeScaled takes it
 function countedTensor(tensor: TensorPrediction, setting: FormatSetting, lossScale: number, arrays: Map<string, TensorPrediction[]> | null, kindsOnly: boolean): number {
   if (setting.held.perTensorScaling || arrays?.has(tensor.id) === true || isProbabilityRow(tensor)) return -1;
   const same = sameDistribution(tensor.start, tensor.end);

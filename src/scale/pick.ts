@@ -20,7 +20,6 @@ import {
   type FindingKind,
   type ScaledSubjects,
 } from "../risk/index.js";
-import { KINDS_ONLY } from "../risk/decide.js";
 import type { NetworkSpec } from "../spec/types.js";
 import type { ScaleWindow } from "./window.js";
 
@@ -217,7 +216,7 @@ export function weighPick(
       stopped = stop !== null && stop(found);
       return !stopped;
     };
-    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, kindsOnly(visit));
+    judgeScaled(subjects, format, 2 ** log2, options.thresholds, order, visit, true);
     if (!stopped) whole.set(log2, found);
     return found;
   };
@@ -291,14 +290,8 @@ export function centreLeavesFindings(subjects: ScaledSubjects, format: FormatNam
     found = true;
     return false;
   };
-  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, kindsOnly(visit));
+  judgeScaled(subjects, format, 2 ** window.pickLog2, options.thresholds, order, visit, true);
   return found;
-}
-
-// a visitor of judgeScaled marked as reading only each finding's kind and severity (src/risk/decide.ts KINDS_ONLY)
-function kindsOnly<V extends object>(visit: V): V {
-  (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] = true;
-  return visit;
 }
 
 // the indices (judgeScaled's) of the tensors that set the window's lower edge, then its upper one

@@ -7,7 +7,6 @@ import { parseSpec } from "../../src/spec/index.js";
 import { buildGraph } from "../../src/graph/index.js";
 import { predictForCheck } from "../../src/magnitude/predict.js";
 import { judgeScaled, scaledSubjects } from "../../src/risk/judge.js";
-import { KINDS_ONLY } from "../../src/risk/decide.js";
 import { centreLeavesFindings } from "../../src/scale/pick.js";
 import { mlpSpec } from "../../bench/generated-specs.js";
 import type { NetworkSpec } from "../../src/spec/types.js";
@@ -375,13 +374,11 @@ describe("the scales the pick weighs are judged for their counts alone", () => {
 
   it("from 2^16 down to 2^-16 on the same subjects, with a visitor reading kinds and severities alone, the counts are the whole check's", () => {
     // judged from the largest scale down, a sum's overflow side shown quiet at one scale is taken as quiet at the next
-    // (src/risk/hazards.ts OVERFLOW_QUIET), and a KINDS_ONLY visitor gets shared records: neither may move a count
+    // (HazardContext.overflowQuietShown), and a visitor reading kinds alone gets shared records: neither may move a count
     const { spec, subjects, order, kinds } = setup();
     for (let k = 16; k >= -16; k -= 2) {
       const found: Counted = { fails: 0, atRisk: 0, overflowSide: 0, conditional: 0 };
-      const visit = counter(found, kinds);
-      (visit as { [KINDS_ONLY]?: boolean })[KINDS_ONLY] = true;
-      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, visit);
+      judgeScaled(subjects, "binary16", 2 ** k, undefined, order, counter(found, kinds), true);
       expect(found, `2^${k}`).toEqual(counted(check(spec, { lossScale: 2 ** k }), "binary16"));
     }
     expect(kinds).toContain("gradient-sum-overflow");
