@@ -70,6 +70,13 @@ describe("1,000-layer dense + ReLU spec", () => {
     variant.training.horizon.weightGrowth = 1;
     if (check(variant).tensors.length === 0) throw new Error("no tensors");
   }, STEADY);
+  // the check and JSON.stringify of its result, as `headroom check --json` gives it: a result works out some fields
+  // when first read (src/risk/tensor-check.ts), and every one of them is read here
+  let serialised = 0;
+  bench("check and its JSON, a new variant each call", () => {
+    serialised += 1;
+    if (JSON.stringify(check(mlpSpec(1 - serialised * 2 ** -20))).length === 0) throw new Error("an empty result");
+  }, STEADY);
   const prediction = predict(graph, spec);
   bench("checkOptimizer alone", () => {
     if (checkOptimizer(spec.training.optimizer, spec.precision, prediction).tensors.length === 0) throw new Error("no weights");

@@ -1,11 +1,13 @@
 #!/usr/bin/env node
 /**
  * Time per fresh check of the 1,000-layer spec, two builds loaded into one process and called in turn:
- *   node bench/compare/check-interleaved.mjs BASE_DIST NEW_DIST [--rounds 4] [--calls 60] [--growth 1.1]
+ *   node bench/compare/check-interleaved.mjs BASE_DIST NEW_DIST [--rounds 4] [--calls 60] [--growth 1.1] [--json 1]
  * Each round is one process: both builds are warmed with WARM_UP_CHECKS checks each (measure.mjs), then each variant
  * no earlier call has seen (input scale moved by 2^-20) is checked by both builds one after the other, the order of
  * the two swapped from variant to variant. Each call's wall time (performance.now) and thread processor time are
- * added to its build's sums; the ratio NEW/BASE of the sums is printed per round and over all rounds.
+ * added to its build's sums; the ratio NEW/BASE of the sums is printed per round and over all rounds. `--json 1` times
+ * each check together with JSON.stringify of its result, as `headroom check --json` does: a result may work out some of
+ * its fields when first read (src/risk/tensor-check.ts), and this is the measure that still counts them.
  *
  * Why beside check-time.mjs: there each build runs in processes of its own, a few seconds apart, and this machine's
  * speed moves by ±20–30% from minute to minute, so gains under ~5% stay unresolved after many rounds. Here both builds
@@ -23,7 +25,8 @@ import { mlpVariant } from "./specs.mjs";
 const self = fileURLToPath(import.meta.url);
 const argv = process.argv.slice(2);
 if (argv[0] === "--round") {
-  const [, baseDist, newDist, calls, growth, round] = argv;
+  const [, baseDist, newDist, calls, growth, round, json] = argv;
+  const serialise = json === "1";
   const builds = [(await loadBuild(baseDist)).check, (await loadBuild(newDist)).check];
   const variant = (i) => mlpVariant(i, Number(round), Number(growth));
   for (let i = 0; i < WARM_UP_CHECKS; i++) for (const check of builds) check(variant(500 + i));
@@ -35,7 +38,8 @@ if (argv[0] === "--round") {
     for (const b of i % 2 === 0 ? [0, 1] : [1, 0]) {
       const w = performance.now();
       const t = threadMs();
-      builds[b](specs[b]);
+      const result = builds[b](specs[b]);
+      if (serialise && JSON.stringify(result).length === 0) throw new Error("an empty result");
       thread[b] += threadMs() - t;
       wall[b] += performance.now() - w;
     }
@@ -43,15 +47,16 @@ if (argv[0] === "--round") {
   const n = Number(calls);
   console.log(JSON.stringify({ wall: wall.map((x) => x / n), thread: thread.map((x) => x / n) }));
 } else {
-  const { positional, options: o } = options(argv, { rounds: 4, calls: 60, growth: 1.1 });
+  const { positional, options: o } = options(argv, { rounds: 4, calls: 60, growth: 1.1, json: 0 });
   if (positional.length !== 2) {
-    console.error("usage: node bench/compare/check-interleaved.mjs BASE_DIST NEW_DIST [--rounds 4] [--calls 60] [--growth 1.1]");
+    console.error("usage: node bench/compare/check-interleaved.mjs BASE_DIST NEW_DIST [--rounds 4] [--calls 60] [--growth 1.1] [--json 1]");
     process.exit(2);
   }
   const sums = { wall: [0, 0], thread: [0, 0] };
-  console.log(`1,000-layer check, weight growth ${o.growth}, both builds in one process, ms per fresh check (${o.calls} each per round):`);
+  const what = o.json === 1 ? "check and JSON.stringify of its result" : "check";
+  console.log(`1,000-layer ${what}, weight growth ${o.growth}, both builds in one process, ms per fresh check (${o.calls} each per round):`);
   for (let r = 0; r < o.rounds; r++) {
-    const out = child(self, ["--round", positional[0], positional[1], String(o.calls), String(o.growth), String(r)]);
+    const out = child(self, ["--round", positional[0], positional[1], String(o.calls), String(o.growth), String(r), String(o.json)]);
     for (const m of ["wall", "thread"]) for (const b of [0, 1]) sums[m][b] += out[m][b];
     const row = (m) => `${m} base ${out[m][0].toFixed(1)} new ${out[m][1].toFixed(1)} (${(out[m][1] / out[m][0]).toFixed(3)})`;
     console.log(`  round ${r + 1}: ${row("wall")}; ${row("thread")}`);
