@@ -227,6 +227,21 @@ interface Table {
   knownLo?: Float64Array;
   knownHi?: Float64Array;
   knownVersion?: Uint32Array;
+  // the edge setter's scan over every tensor here, kept for later scans of a subset of its tensors (Scanned)
+  scanned?: Scanned;
+}
+// What an edge setter's scan at one exponent left (worst): the tensors it scanned, and per tensor an upper bound on its
+// value there (the value itself where it was integrated). A later scan of a subset of those tensors (a window with
+// tensors set aside, which the remedies ask for in turn) visits them from the highest bound down, and stops at the
+// first bound below the largest value found: every tensor after it is bounded below that value, so the largest is
+// the same tensor a scan of every tensor finds (ties: the lowest index, as the heap orders equal bounds), without a
+// pass over them all. The order is drawn off a heap as far as the scans reach, once for all of them.
+interface Scanned {
+  active: Uint8Array;
+  keys: Float64Array;
+  heap: IndexHeap | undefined;
+  order: Int32Array | undefined;
+  count: number;
 }
 const HAS_VALUE = 1;
 const HAS_UPPER = 2;
@@ -948,6 +963,11 @@ class WindowSearch {
   // are integrated, in priority order so that a large value is found early.
   private worst(curve: Curve, k: number, active: Uint8Array): { id: string | null; value: number } {
     const table = this.table(curve, k);
+    const scanned = table.scanned;
+    if (scanned !== undefined && this.subsetOf(active, scanned.active)) {
+      const found = this.worstOfScanned(curve, k, active, table, scanned);
+      if (found !== undefined) return found;
+    }
     const n = this.n;
     const highs = this.worstHighs;
     const visited = this.visited;
@@ -1049,15 +1069,83 @@ class WindowSearch {
     }
     let id: string | null = null;
     let best = -Infinity;
+    // the bounds kept for a later scan of a subset (Scanned): each tensor's, its value where integrated (none kept where
+    // one is not a number: the heap's order needs numbers)
+    const keys = new Float64Array(n);
+    let ordered = true;
     for (let i = 0; i < n; i++) {
-      if (visited[i] === 0) continue;
+      if (active[i] === 0) continue;
+      const high = highs[i] as number;
+      if (visited[i] === 0) {
+        if (!(high === high)) ordered = false;
+        keys[i] = high;
+        continue;
+      }
       const v = table.data[4 * i + 3] as number;
+      if (!(v === v)) ordered = false;
+      keys[i] = v;
       if (v > best || id === null) {
         best = Math.max(best, v);
         id = (this.tensors[i] as ScaledTensorCurves).id;
       }
     }
+    table.scanned = ordered ? { active: active.slice(), keys, heap: undefined, order: undefined, count: 0 } : undefined;
     return { id, value: best };
+  }
+
+  // whether every tensor active in `a` is active in `b`
+  private subsetOf(a: Uint8Array, b: Uint8Array): boolean {
+    for (let i = 0; i < this.n; i++) if (a[i] === 1 && b[i] === 0) return false;
+    return true;
+  }
+
+  // worst's answer for a subset of the tensors an earlier scan here saw, from its bounds (Scanned): the tensors visited
+  // from the highest bound down, each bounded or integrated as worst does it, until a bound lies below the largest value
+  // found; undefined where a value is not a number (worst's scan of every tensor then answers)
+  private worstOfScanned(curve: Curve, k: number, active: Uint8Array, table: Table, scanned: Scanned): { id: string | null; value: number } | undefined {
+    const keys = scanned.keys;
+    if (scanned.order === undefined) {
+      const order = new Int32Array(this.n);
+      let count = 0;
+      for (let i = 0; i < this.n; i++) if (scanned.active[i] === 1) order[count++] = i;
+      // ties by the lower index on top
+      const heap = new IndexHeap(keys);
+      heap.fill(order, count);
+      scanned.heap = heap;
+      scanned.order = order;
+    }
+    const order = scanned.order;
+    const heap = scanned.heap!;
+    let floor = -Infinity;
+    let holder = -1;
+    for (let r = 0; ; r++) {
+      if (r === scanned.count) {
+        if (heap.size === 0) break;
+        order[scanned.count++] = heap.pop();
+      }
+      const i = order[r] as number;
+      let high = keys[i] as number;
+      // every later tensor is bounded by this bound or below it
+      if (high < floor) break;
+      if (active[i] === 0 || (holder >= 0 && i > holder && high <= floor)) continue;
+      let v: number;
+      if (((table.flags[i] as number) & HAS_VALUE) !== 0) v = table.data[4 * i + 3] as number;
+      else {
+        if (curve === "overflow" && high > floor && high > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table)) {
+          if ((table.data[4 * i + 1] as number) < high) high = table.data[4 * i + 1] as number;
+          if (high < floor) continue;
+        }
+        const u = high > floor ? this.upper(curve, k, i, table) : undefined;
+        if (u !== undefined && u < floor) continue;
+        v = this.value(curve, k, i, table);
+      }
+      if (!(v === v)) return undefined;
+      if (v > floor) {
+        floor = v;
+        holder = i;
+      } else if (v === floor && (holder < 0 || i < holder)) holder = i;
+    }
+    return { id: holder < 0 ? null : (this.tensors[holder] as ScaledTensorCurves).id, value: floor };
   }
 
   // Whether tensor i's flushed share at k is within the tolerance by its curve's once-per-tensor bound (withinFrom)
