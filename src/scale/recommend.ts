@@ -127,8 +127,9 @@ export function lossScaleAnswer(prediction: Prediction, plan: PrecisionPlan, opt
   // the gradients' profiles and draw bounds serve every format the answer tries and the simulation's ends
   const profiles = gradientProfiles(stored);
   const curves = boundedLossScaleCurves(stored, limits, profiles);
-  // the remedies' windows are this one with tensors set aside: one search serves them all
-  const windowWithout = lossScaleWindows(curves, windowOptions);
+  // the remedies' windows are this one with tensors set aside: one search serves them all (the curves' ids are their
+  // tensors', unique within a prediction: magnitude/types.ts)
+  const windowWithout = lossScaleWindows(curves, windowOptions, undefined, true);
   const window = windowWithout();
   const pick = window.pickLog2 === null ? null : 2 ** window.pickLog2;
   // the caller's scale wins over the plan's, as it does in the judgement

@@ -140,6 +140,9 @@ export function lossScaleWindows(
   tensors: readonly ScaledTensorCurves[],
   options: Partial<WindowOptions> = {},
   flushLike?: FlushLike,
+  // true where no two tensors share an id (a prediction's): an id set aside that a window named as a setter is then
+  // found by that window's index
+  uniqueIds = false,
 ): WindowsOf {
   const o = { ...DEFAULT_WINDOW_OPTIONS, ...options };
   if (!(o.riskBudget > 0 && o.riskBudget < 1)) throw new RangeError(`riskBudget must lie in (0, 1). Value: ${o.riskBudget}`);
@@ -154,7 +157,7 @@ export function lossScaleWindows(
     }
     shared = { search: earlier, shift: flushLike.shift };
   }
-  const search = new WindowSearch(tensors, o, shared);
+  const search = new WindowSearch(tensors, o, shared, uniqueIds);
   // each id set aside, its tensors: found by comparing the few ids set aside with every tensor's, kept for the next set
   // (a remedy sets aside a few tensors, adding one at a time; a map of every id would hash all of them, most never
   // asked for)
@@ -174,12 +177,13 @@ export function lossScaleWindows(
       for (const id of setAside) {
         let indices = indicesOf.get(id);
         if (indices === undefined) {
-          indices = [];
-          if (ids === undefined) {
+          const at = search.setterAt(id);
+          indices = at === undefined ? [] : [at];
+          if (at === undefined && ids === undefined) {
             ids = new Array<string>(tensors.length);
             for (let i = 0; i < tensors.length; i++) ids[i] = (tensors[i] as ScaledTensorCurves).id;
           }
-          for (let i = 0; i < ids.length; i++) if (ids[i] === id) indices.push(i);
+          if (at === undefined) for (let i = 0; i < ids!.length; i++) if (ids![i] === id) indices.push(i);
           indicesOf.set(id, indices);
         }
         for (let j = 0; j < indices.length; j++) active[indices[j] as number] = 0;
@@ -349,12 +353,18 @@ class WindowSearch {
   // comparison (most tensors of a large network at the extreme exponents a search starts from)
   private readonly zeroTo: Float64Array;
 
+  // each edge setter's index by its id, where the ids are unique (the remedies set setters aside, and their windows then
+  // find them here instead of comparing the id with every tensor's)
+  private readonly setters: Map<string, number> | undefined;
+
   constructor(
     private readonly tensors: readonly ScaledTensorCurves[],
     private readonly o: WindowOptions,
     flushFrom?: { search: WindowSearch; shift: number },
+    uniqueIds = false,
   ) {
     this.n = tensors.length;
+    this.setters = uniqueIds ? new Map() : undefined;
     this.flushShift = flushFrom === undefined ? 0 : flushFrom.search.flushShift + flushFrom.shift;
     this.overflowKnown = knowledge(this.n);
     this.flushKnown = flushFrom === undefined ? flushKnowledge(this.n) : flushFrom.search.flushKnown;
@@ -425,10 +435,8 @@ class WindowSearch {
     // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
     const lowest = this.flushEdge(active);
 
-    const upperEdgeSetBy =
-      highest === null ? this.worst("overflow", o.lowestLog2, active).id : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active).id : null;
-    const lowerEdgeSetBy =
-      lowest === null ? this.worst("flush", o.highestLog2, active).id : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active).id : null;
+    const upperEdgeSetBy = this.setter(highest === null ? this.worst("overflow", o.lowestLog2, active) : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active) : -1);
+    const lowerEdgeSetBy = this.setter(lowest === null ? this.worst("flush", o.highestLog2, active) : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active) : -1);
 
     const empty = highest === null || lowest === null || lowest > highest;
     let pick: number | null = null;
@@ -450,6 +458,19 @@ class WindowSearch {
       gapBinades: empty && highest !== null && lowest !== null ? lowest - highest : null,
       unscaledFits: !empty && lowest! <= 0 && 0 <= highest!,
     };
+  }
+
+  // tensor i's id (null for −1), kept by id where the tensors' ids are unique (setterAt)
+  private setter(i: number): string | null {
+    if (i < 0) return null;
+    const id = (this.tensors[i] as ScaledTensorCurves).id;
+    this.setters?.set(id, i);
+    return id;
+  }
+
+  /** the one tensor with this id, where the ids are unique and a window named it as an edge's setter */
+  setterAt(id: string): number | undefined {
+    return this.setters?.get(id);
   }
 
   private table(curve: Curve, at: number): Table {
@@ -961,12 +982,12 @@ class WindowSearch {
   // value is above 0). A tensor whose upper bound is below a value already found, or below another's lower bound,
   // cannot be the largest, nor can one whose bound only reaches a value found on a tensor before it: only the others
   // are integrated, in priority order so that a large value is found early.
-  private worst(curve: Curve, k: number, active: Uint8Array): { id: string | null; value: number } {
+  private worst(curve: Curve, k: number, active: Uint8Array): number {
     const table = this.table(curve, k);
     const scanned = table.scanned;
     if (scanned !== undefined && this.subsetOf(active, scanned.active)) {
       const found = this.worstOfScanned(curve, k, active, table, scanned);
-      if (found !== undefined) return found;
+      if (found !== -2) return found;
     }
     const n = this.n;
     const highs = this.worstHighs;
@@ -1067,7 +1088,7 @@ class WindowSearch {
         holder = i;
       } else if (v === floor && (holder < 0 || i < holder)) holder = i;
     }
-    let id: string | null = null;
+    let id = -1;
     let best = -Infinity;
     // the bounds kept for a later scan of a subset (Scanned): each tensor's, its value where integrated (none kept where
     // one is not a number: the heap's order needs numbers)
@@ -1084,13 +1105,13 @@ class WindowSearch {
       const v = table.data[4 * i + 3] as number;
       if (!(v === v)) ordered = false;
       keys[i] = v;
-      if (v > best || id === null) {
+      if (v > best || id < 0) {
         best = Math.max(best, v);
-        id = (this.tensors[i] as ScaledTensorCurves).id;
+        id = i;
       }
     }
     table.scanned = ordered ? { active: active.slice(), keys, heap: undefined, order: undefined, count: 0 } : undefined;
-    return { id, value: best };
+    return id;
   }
 
   // whether every tensor active in `a` is active in `b`
@@ -1101,8 +1122,8 @@ class WindowSearch {
 
   // worst's answer for a subset of the tensors an earlier scan here saw, from its bounds (Scanned): the tensors visited
   // from the highest bound down, each bounded or integrated as worst does it, until a bound lies below the largest value
-  // found; undefined where a value is not a number (worst's scan of every tensor then answers)
-  private worstOfScanned(curve: Curve, k: number, active: Uint8Array, table: Table, scanned: Scanned): { id: string | null; value: number } | undefined {
+  // found (−1: none); −2 where a value is not a number (worst's scan of every tensor then answers)
+  private worstOfScanned(curve: Curve, k: number, active: Uint8Array, table: Table, scanned: Scanned): number {
     const keys = scanned.keys;
     if (scanned.order === undefined) {
       const order = new Int32Array(this.n);
@@ -1139,13 +1160,13 @@ class WindowSearch {
         if (u !== undefined && u < floor) continue;
         v = this.value(curve, k, i, table);
       }
-      if (!(v === v)) return undefined;
+      if (!(v === v)) return -2;
       if (v > floor) {
         floor = v;
         holder = i;
       } else if (v === floor && (holder < 0 || i < holder)) holder = i;
     }
-    return { id: holder < 0 ? null : (this.tensors[holder] as ScaledTensorCurves).id, value: floor };
+    return holder;
   }
 
   // Whether tensor i's flushed share at k is within the tolerance by its curve's once-per-tensor bound (withinFrom)
