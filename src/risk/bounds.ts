@@ -143,12 +143,19 @@ export function energyBelowWithinLog2(profile: MagnitudeProfile, tolerance: numb
  */
 export function energyBelowWithinLog2Of(rmsLog2: number, log2Spread: number, tolerance: number): number {
   const m = 3 * log2Spread * LN2;
-  const most = Math.log(tolerance / (2 * 1.01));
+  // (one tolerance for every tensor of a search: its logarithm taken once, the same double)
+  if (tolerance !== MOST_FOR[0]) {
+    MOST_FOR[0] = tolerance;
+    MOST_FOR[1] = Math.log(tolerance / (2 * 1.01));
+  }
+  const most = MOST_FOR[1]!;
   // the largest ln c with E(ln c) ≤ most (E is continuous at −m², where both forms give −m²/2)
   const logC = most <= (-m * m) / 2 ? most - (m * m) / 2 : -m * Math.sqrt(-2 * most);
   const log2T = rmsLog2 + (logC - LOG_ENERGY_DENSITY) / (3 * LN2) - 1e-6;
   return log2T === log2T ? log2T : -Infinity;
 }
+// the tolerance energyBelowWithinLog2Of last took, and the logarithm it takes of it
+const MOST_FOR = Float64Array.of(NaN, NaN);
 // settle.ts capMean, E_z[min(1, c·e^{−m·z})] = Φ(z*) + c·e^{m²/2}·Q(z* + m) (z* = ln(c)/m), from the fast tails of
 // _math.ts (relative error below 1.2e-7 each, hence the 3e-7 of room) instead of the accurate tail and its logarithm:
 // the factor c·e^{m²/2} taken whole, and capMean itself where it overflows

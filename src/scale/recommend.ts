@@ -214,8 +214,8 @@ class ShiftLevelTable {
   at(i: number, start: MagnitudeProfile, end: MagnitudeProfile): number {
     const base = 6 * i;
     if (this.made[i] === 0) {
-      shiftLevels(start.elements * (1 - start.zeroFraction), this.levels, base);
-      shiftLevels(end.elements * (1 - end.zeroFraction), this.levels, base + 3);
+      this.levelsOf(start.elements * (1 - start.zeroFraction), base);
+      this.levelsOf(end.elements * (1 - end.zeroFraction), base + 3);
       this.numbers(2 * i, start);
       this.numbers(2 * i + 1, end);
       this.made[i] = 1;
@@ -241,6 +241,31 @@ class ShiftLevelTable {
     return this.above![j]!;
   }
 
+  // the last few counts whose levels were made, and where: a stack of alike layers has a few counts for thousands of
+  // profiles, and the levels are a function of the count alone (shiftLevels: a logarithm and two look-ups each)
+  private readonly counts = new Float64Array(LEVEL_COUNTS).fill(NaN);
+  private readonly countAt = new Int32Array(LEVEL_COUNTS);
+  private nextCount = 0;
+
+  // shiftLevels(count) into the levels at `at`, copied from a profile of the same count where one was made lately
+  private levelsOf(count: number, at: number): void {
+    const levels = this.levels;
+    const counts = this.counts;
+    for (let c = 0; c < LEVEL_COUNTS; c++) {
+      if (counts[c] !== count) continue;
+      const from = this.countAt[c]!;
+      levels[at] = levels[from]!;
+      levels[at + 1] = levels[from + 1]!;
+      levels[at + 2] = levels[from + 2]!;
+      return;
+    }
+    shiftLevels(count, levels, at);
+    const c = this.nextCount;
+    counts[c] = count;
+    this.countAt[c] = at;
+    this.nextCount = (c + 1) % LEVEL_COUNTS;
+  }
+
   private numbers(j: number, profile: MagnitudeProfile): void {
     this.rmsLog2[j] = Math.log2(profile.rms);
     this.spread[j] = profile.log2Spread;
@@ -248,6 +273,8 @@ class ShiftLevelTable {
     this.bound[j] = profile.bound !== undefined && profile.bound > 0 ? profile.bound : Infinity;
   }
 }
+// the counts ShiftLevelTable remembers the levels of
+const LEVEL_COUNTS = 8;
 // each set of gradient profiles' level table (an answer's profiles serve several formats and the dynamic simulation)
 const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
 function levelTable(profiles: readonly GradientProfiles[]): ShiftLevelTable {
@@ -277,6 +304,8 @@ const MEMO_START = Float64Array.of(NaN, 1, 1, NaN, NaN, NaN, 1, 1, NaN, 0);
 // roughOf's bounds [lower, upper] of the profile it last bounded (read at once by its caller), and overflowRiskRough's
 // of the tensor (typed arrays' slots: a module variable boxed each double stored, one per rough bound)
 const ROUGH_OF = new Float64Array(2);
+// the flush bound flushedEnergyWithinFrom last took, and its log2
+const FLUSH_LOG2 = Float64Array.of(NaN, NaN);
 const ROUGH = new Float64Array(2);
 
 // One tensor's curves of boundedLossScaleCurves: the parts (profiles, their bounds, the cheap bounds: one object with
@@ -284,8 +313,6 @@ const ROUGH = new Float64Array(2);
 // window asks for a tensor's bound and then its value at one exponent; it keeps both itself, src/scale/window.ts), kept
 // in the format's memo array. One object per tensor, its methods shared.
 class BoundedCurves extends CurveParts implements ScaledTensorCurves {
-  readonly flushedEnergyGrowth: number | undefined;
-
   constructor(
     profiles: GradientProfiles,
     edgeGuessesLog2: { overflow: number; flush: number },
@@ -296,7 +323,12 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     private readonly memo: Float64Array,
   ) {
     super(profiles, edgeGuessesLog2, limits);
-    this.flushedEnergyGrowth = growsAtMostEightfold(profiles.start) && growsAtMostEightfold(profiles.end) ? FLUSH_GROWTH : undefined;
+  }
+
+  // worked out when the search reads it (once per tensor, for the few whose flushed shares it bounds from a binade up),
+  // not when the curves are made
+  get flushedEnergyGrowth(): number | undefined {
+    return growsAtMostEightfold(this.parts.start) && growsAtMostEightfold(this.parts.end) ? FLUSH_GROWTH : undefined;
   }
 
   // this tensor's offset in `memo` (worked out, not kept: a field more on each of ~4,000 objects)
@@ -544,7 +576,14 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const parts = this.parts;
     let log2T = energyBelowWithinLog2(parts.start, tolerance);
     if (!parts.same) log2T = Math.min(log2T, energyBelowWithinLog2(parts.end, tolerance));
-    return log2T === -Infinity ? Infinity : Math.log2(this.limits.flushBound) - log2T;
+    if (log2T === -Infinity) return Infinity;
+    // (log2 of the format's flush bound taken once for every tensor of the format, the same double)
+    const bound = this.limits.flushBound;
+    if (bound !== FLUSH_LOG2[0]) {
+      FLUSH_LOG2[0] = bound;
+      FLUSH_LOG2[1] = Math.log2(bound);
+    }
+    return FLUSH_LOG2[1]! - log2T;
   }
 
   // where both profiles take energyBelowUpper's closed form (two normal tails, src/risk/bounds.ts) at every threshold: no

@@ -300,13 +300,15 @@ class WindowSearch {
   private readonly n: number;
   // the flush tables are kept by k + flushShift: shared with an earlier search whose exponents lie flushShift apart
   private readonly flushShift: number;
-  // per tensor its flushedEnergyGrowth (0: none)
+  // per tensor its flushedEnergyGrowth (0: none; NaN until read: most tensors' flushed shares are settled without it, and
+  // a remedy's search of bfloat16's curves reads almost none)
   private readonly growth: Float64Array;
-  // per tensor 1 where its flushedEnergyUpper is asked before its cheap flush bounds (flushedEnergyUpperFirst)
+  // per tensor 2 where its flushedEnergyUpper is asked before its cheap flush bounds (flushedEnergyUpperFirst), 1 where
+  // not, 0 until read (as the growth: a getter that tests both profiles' laws, asked of few tensors)
   private readonly upperFirst: Uint8Array;
   // per tensor its flushedEnergyWithinFrom at the search's tolerance (NaN until asked; ∞ where the curve has none)
   private readonly withinFrom: Float64Array;
-  // powerBase^d for d < POWERS (NaN until asked), the first growth offered (in practice every tensor's): the bound by the
+  // powerBase^d for d < POWERS (NaN until asked), the first growth read (in practice every tensor's): the bound by the
   // growth is read here instead of raising it anew (Math.pow, ~50 ns) for each tensor and table; the same doubles, each
   // computed once
   private powerBase = 0;
@@ -368,17 +370,9 @@ class WindowSearch {
     this.flushShift = flushFrom === undefined ? 0 : flushFrom.search.flushShift + flushFrom.shift;
     this.overflowKnown = knowledge(this.n);
     this.flushKnown = flushFrom === undefined ? flushKnowledge(this.n) : flushFrom.search.flushKnown;
-    this.growth = new Float64Array(this.n);
+    this.growth = new Float64Array(this.n).fill(NaN);
     this.upperFirst = new Uint8Array(this.n);
     this.withinFrom = new Float64Array(this.n).fill(NaN);
-    for (let i = 0; i < this.n; i++) {
-      if ((tensors[i] as ScaledTensorCurves).flushedEnergyUpperFirst === true) this.upperFirst[i] = 1;
-      const g = (tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
-      if (g !== undefined && g >= 1 && Number.isFinite(g)) {
-        this.growth[i] = g;
-        if (this.powerBase === 0) this.powerBase = g;
-      }
-    }
     this.overflowGuesses = new Float64Array(this.n);
     this.guessed = new Uint8Array(this.n);
     for (let i = 0; i < this.n; i++) {
@@ -399,6 +393,27 @@ class WindowSearch {
     this.worstHighs = new Float64Array(this.n);
     this.visited = new Uint8Array(this.n);
     this.zeroTo = new Float64Array(this.n).fill(-Infinity);
+  }
+
+  // tensor i's flushedEnergyGrowth where it offers one (≥ 1 and finite), else 0; read once
+  private growthOf(i: number): number {
+    let g = this.growth[i] as number;
+    if (g === g) return g;
+    const offered = (this.tensors[i] as ScaledTensorCurves).flushedEnergyGrowth;
+    g = offered !== undefined && offered >= 1 && Number.isFinite(offered) ? offered : 0;
+    this.growth[i] = g;
+    if (g > 0 && this.powerBase === 0) this.powerBase = g;
+    return g;
+  }
+
+  // whether tensor i's flushedEnergyUpper is asked before its cheap flush bounds; read once
+  private upperFirstOf(i: number): boolean {
+    let u = this.upperFirst[i] as number;
+    if (u === 0) {
+      u = (this.tensors[i] as ScaledTensorCurves).flushedEnergyUpperFirst === true ? 2 : 1;
+      this.upperFirst[i] = u;
+    }
+    return u === 2;
   }
 
   private power(d: number): number {
@@ -633,7 +648,7 @@ class WindowSearch {
     let lo = -Infinity;
     let hi = Infinity;
     const k = rising ? at : at + this.flushShift;
-    const growth = rising ? 0 : (this.growth[i] as number);
+    const growth = rising ? 0 : this.growthOf(i);
     const kn = rising ? this.overflowKnown : this.flushKnown;
     const sorted = kn.sorted;
     const byBit = kn.byBit;
@@ -1014,7 +1029,7 @@ class WindowSearch {
         if (curve === "overflow") this.roughFirst(k, i, table);
         // a flushed share whose tighter bound costs no more: that bound alone (the cheap bounds' low raises the floor
         // little, and the visit below asks the tighter one of most tensors anyway)
-        if (curve === "overflow" || this.upperFirst[i] === 0) this.cheapBounds(curve, i, table);
+        if (curve === "overflow" || !this.upperFirstOf(i)) this.cheapBounds(curve, i, table);
         else this.upper(curve, k, i, table);
         known = this.knownWithHere(curve, i, table, known[0] as number, known[1] as number);
       }
@@ -1050,7 +1065,7 @@ class WindowSearch {
       const i = r < 0 ? seed : (order[r] as number);
       if (active[i] === 0 || (r >= 0 && i === seed)) continue;
       if ((highs[i] as number) < floor || (holder >= 0 && i > holder && (highs[i] as number) <= floor)) continue;
-      if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0 && (curve === "overflow" || this.upperFirst[i] === 0)) {
+      if (((table.flags[i] as number) & (HAS_VALUE | HAS_BOUNDS)) === 0 && (curve === "overflow" || !this.upperFirstOf(i))) {
         // bounded from another exponent only: the rougher or the cheap bounds here first (a flushed share whose tighter
         // bound costs no more takes that one below instead)
         if (curve === "overflow") this.roughFirst(k, i, table);
@@ -1206,7 +1221,7 @@ class WindowSearch {
       // the flush edge's setter one binade down is then found by the growth bound from it. Not at the lowest exponent:
       // an edge there has nothing below it to search, and the cheap bounds, the cheaper where they decide, settle
       // nearly every share there
-      if (this.upperFirst[i] === 1 && k > this.o.lowestLog2) {
+      if (k > this.o.lowestLog2 && this.upperFirstOf(i)) {
         const upper = this.upper("flush", k, i, table);
         if (upper !== undefined && upper <= tolerance) ok = true;
       }
