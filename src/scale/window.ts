@@ -450,8 +450,11 @@ class WindowSearch {
     // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
     const lowest = this.flushEdge(active);
 
-    const upperEdgeSetBy = this.setter(highest === null ? this.worst("overflow", o.lowestLog2, active) : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active) : -1);
-    const lowerEdgeSetBy = this.setter(lowest === null ? this.worst("flush", o.highestLog2, active) : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active) : -1);
+    // an empty window's scans keep their bounds for the subsets' windows that may follow (the loss-scale answer's
+    // remedies, which come with an empty window only)
+    const keep = highest === null || lowest === null || lowest > highest;
+    const upperEdgeSetBy = this.setter(highest === null ? this.worst("overflow", o.lowestLog2, active, keep) : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active, keep) : -1);
+    const lowerEdgeSetBy = this.setter(lowest === null ? this.worst("flush", o.highestLog2, active, keep) : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active, keep) : -1);
 
     const empty = highest === null || lowest === null || lowest > highest;
     let pick: number | null = null;
@@ -997,7 +1000,7 @@ class WindowSearch {
   // value is above 0). A tensor whose upper bound is below a value already found, or below another's lower bound,
   // cannot be the largest, nor can one whose bound only reaches a value found on a tensor before it: only the others
   // are integrated, in priority order so that a large value is found early.
-  private worst(curve: Curve, k: number, active: Uint8Array): number {
+  private worst(curve: Curve, k: number, active: Uint8Array, keep: boolean): number {
     const table = this.table(curve, k);
     const scanned = table.scanned;
     if (scanned !== undefined && this.subsetOf(active, scanned.active)) {
@@ -1107,25 +1110,27 @@ class WindowSearch {
     let best = -Infinity;
     // the bounds kept for a later scan of a subset (Scanned): each tensor's, its value where integrated (none kept where
     // one is not a number: the heap's order needs numbers)
-    const keys = new Float64Array(n);
-    let ordered = true;
+    const keys = keep ? new Float64Array(n) : undefined;
+    let ordered = keep;
     for (let i = 0; i < n; i++) {
       if (active[i] === 0) continue;
-      const high = highs[i] as number;
       if (visited[i] === 0) {
-        if (!(high === high)) ordered = false;
-        keys[i] = high;
+        if (keys !== undefined) {
+          const high = highs[i] as number;
+          if (!(high === high)) ordered = false;
+          keys[i] = high;
+        }
         continue;
       }
       const v = table.data[4 * i + 3] as number;
+      if (keys !== undefined) keys[i] = v;
       if (!(v === v)) ordered = false;
-      keys[i] = v;
       if (v > best || id < 0) {
         best = Math.max(best, v);
         id = i;
       }
     }
-    table.scanned = ordered ? { active: active.slice(), keys, heap: undefined, order: undefined, count: 0 } : undefined;
+    if (keep) table.scanned = ordered ? { active: active.slice(), keys: keys!, heap: undefined, order: undefined, count: 0 } : undefined;
     return id;
   }
 

@@ -115,6 +115,33 @@ describe("lossScaleWindow searches", () => {
     );
   });
 
+  it("give each held set's window of the definition for an empty window, its setters set aside one at a time", () => {
+    // as the loss-scale answer's remedies ask (src/scale/recommend.ts rankRemedies): an empty window's edge setters set
+    // aside in turn, so that each later search scans a subset of the tensors an earlier scan at the same exponent saw
+    // (its setter found from that scan's bounds: the first tensor with the largest exact value all the same)
+    const emptyShape = shape.map((s) => ({ ...s, overflowCentre: s.overflowCentre / 4 - 6, flushCentre: s.flushCentre / 4 + 6 }));
+    fc.assert(
+      fc.property(fc.array(emptyShape, { minLength: 2, maxLength: 10 }), fc.constantFrom("lower" as const, "upper" as const), (shapes, edge) => {
+        const tensors = curves(shapes);
+        const windowOf = lossScaleWindows(tensors, OPTIONS, undefined, true);
+        let current = windowOf();
+        expect(edgesOf(current)).toEqual(directWindow(tensors, OPTIONS));
+        const held = new Set<string>();
+        for (let i = 0; i < 6 && current.empty; i++) {
+          const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
+          if (setter === null) break;
+          held.add(setter);
+          const rest = tensors.filter((t) => !held.has(t.id));
+          if (rest.length === 0) break;
+          current = windowOf(new Set(held));
+          expect(edgesOf(current)).toEqual(directWindow(rest, OPTIONS));
+          expect(current).toEqual(lossScaleWindow(rest, OPTIONS));
+        }
+      }),
+      { numRuns: 300 },
+    );
+  });
+
   it("gives the definition's window where tighter flush bounds are asked before the cheap ones, for a set and its subsets", () => {
     // flushedEnergyUpperFirst: the searches then ask flushedEnergyUpper first; it is a valid bound however loose, so the
     // window, its edges and their setters are the definition's
