@@ -7,7 +7,7 @@ import { pow2 } from "../formats/index.js";
 import type { MagnitudeProfile, TensorPrediction } from "../magnitude/types.js";
 import { DRAWS, ProfileDrawBounds } from "./bounds.js";
 import { riskProfile, sameDistribution } from "./profile.js";
-import { GRADIENT_ROLES } from "./tensor.js";
+import { isGradientRole } from "./tensor-finding.js";
 import type { RangeLimits } from "./types.js";
 
 /** What a gradient tensor's loss-scale curves are computed from: its start and end profiles (one object when alike). */
@@ -53,8 +53,10 @@ export function gradientProfiles(tensors: readonly TensorPrediction[]): Gradient
   return out;
 }
 
+// the role by comparison (isGradientRole), not GRADIENT_ROLES.includes: the builtin's call, twice for each of a check's
+// ~4,000 tensors, made gradientProfiles ~10–30% slower on the 1,000-layer spec
 function isCurved(tensor: TensorPrediction): boolean {
-  return GRADIENT_ROLES.includes(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0);
+  return isGradientRole(tensor.role) && (tensor.start.rms > 0 || tensor.end.rms > 0);
 }
 
 /** One tensor's {@link GradientProfiles}, whatever its role. */

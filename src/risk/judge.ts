@@ -25,7 +25,6 @@ import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
   isProbabilityRow,
-  LOSS_SCALED_ROLES,
   lossScaleFactor,
   overflowAtRiskThreshold,
   scaledTensor,
@@ -37,7 +36,7 @@ import {
   type TensorStatistics,
 } from "./tensor.js";
 import { countedFindings, decidedFindings, FormatDecision } from "./decide.js";
-import { FOUND, NO_FINDINGS } from "./tensor-finding.js";
+import { FOUND, isGradientRole, NO_FINDINGS } from "./tensor-finding.js";
 import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { judge, worseVerdict } from "./verdict.js";
@@ -452,7 +451,7 @@ export function scaledSubjects(spec: NetworkSpec, prediction: Prediction): Scale
   const allWeightGradients = weightGradientsOf(prediction);
   const weightGradients = clippedWeightGradients(allWeightGradients, spec.training.optimizer.clipNorm);
   for (const site of trainingSites(spec, prediction, allWeightGradients, weightGradients)) if (isScaledSite(site.kind)) sites.push({ site, origin: "training setup" });
-  const tensors = storedTensors(prediction, spec.precision).filter((t) => LOSS_SCALED_ROLES.includes(t.role));
+  const tensors = storedTensors(prediction, spec.precision).filter((t) => isGradientRole(t.role));
   // as judgePrediction passes them to the hazards: clipped
   return { spec, tensors, sites, weightGradients, arrays: storedArrays(tensors) };
 }
