@@ -295,48 +295,27 @@ function profileFrom(
   const maxElement = maxElementOf(shape, tail, elementLog2Spread, bound, rms, elements * keep, mixture);
   const sampleCorrelation = shared !== undefined && shared !== 0 && q > 0 ? Math.min(Math.max(shared / q, -1), 1) : undefined;
   const positionCorrelation = given !== undefined && given !== 0 ? given : undefined;
-  // a copy of one template, its fields then set in place: every key, absent ones undefined, in the order the JSON output
-  // has always had them, so every profile has one hidden class (keys added one by one would give each combination its
-  // own chain of classes) and JSON leaves the undefined keys out. Not a literal: V8 moves a literal whose objects outlive
-  // collections (a prediction's, kept for the whole check) to allocating them in the old generation, where each took
-  // several times a young allocation (about a tenth of predict's samples, its largest line); a copy is made young
-  const profile = { ...PROFILE_TEMPLATE } as unknown as MagnitudeProfile;
-  profile.elements = elements;
-  profile.zeroFraction = zeroFraction;
-  profile.shape = shape;
-  profile.rms = rms;
-  profile.log2Spread = log2Spread;
-  profile.meanSquare = q;
-  profile.maxElement = maxElement;
-  profile.bound = bound;
-  profile.elementLog2Spread = shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined;
-  profile.mixture = shape === "gaussian-mixture" ? mixture : undefined;
-  profile.sampleCorrelation = sampleCorrelation;
-  profile.positionCorrelation = positionCorrelation;
+  // a literal with every key, absent ones undefined, in the order the JSON output has always had them, so every profile
+  // has one hidden class and JSON leaves the undefined keys out. A literal, not a copy of a template: V8 tracks a
+  // literal's allocation site, sees a prediction's profiles outlive young collections (it is kept for the whole check) and
+  // then allocates them in the old generation, where no scavenge copies them. Each allocation costs more there, but on
+  // the 1,000-layer spec a check ran ~0.77x the scavenges with ~0.6-0.7x their pause, and ~0.9-0.95x the process's
+  // processor time (Dec 2026, against a template's copy, which stays young; bench/compare/check-memory.mjs). The copy had
+  // been measured against the literal with 3 warm-up checks and no count of scavenges (whole check 0.98x / 1.02x)
+  const profile: MagnitudeProfile = {
+    elements,
+    zeroFraction,
+    shape,
+    rms,
+    log2Spread,
+    meanSquare: q,
+    maxElement,
+    bound,
+    elementLog2Spread: shape === "log-normal" ? (elementLog2Spread ?? 0) : undefined,
+    mixture: shape === "gaussian-mixture" ? mixture : undefined,
+    sampleCorrelation,
+    positionCorrelation,
+    coherentRms: undefined,
+  };
   return profile;
 }
-
-/**
- * The template's numbers are undefined, not 0, though each is set right after the copy: V8 then keeps those fields as
- * plain tagged values, so the copy (a call into the object-copying builtin) copies pointers, where numeric fields (kept
- * as boxed doubles) had it make a box of its own for each of the five non-integer ones before they were overwritten in
- * place; an integer (a count, a share of 0) now takes no box at all. The numbers and the JSON are the same
- * (predictForCheck alone ~0.96x on the 1,000-layer spec at weight growth 1.1, none at growth 1, Dec 2026). A
- * constructor in place of the copy (~0.975x there) slowed the examples' checks (transformer-encoder 1.2x,
- * wide-classifier 1.3–1.7x): a spread of its objects (src/risk's moved profiles) was ~1.5x dearer than of a copy's.
- */
-const PROFILE_TEMPLATE = {
-  elements: undefined,
-  zeroFraction: undefined,
-  shape: "gaussian",
-  rms: undefined,
-  log2Spread: undefined,
-  meanSquare: undefined,
-  maxElement: undefined,
-  bound: undefined,
-  elementLog2Spread: undefined,
-  mixture: undefined,
-  sampleCorrelation: undefined,
-  positionCorrelation: undefined,
-  coherentRms: undefined,
-};
