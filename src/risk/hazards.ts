@@ -367,8 +367,8 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
       else if (evaluation.layer === undefined) evaluation.layer = siteLayer;
     }
   }
-  const evaluationList = counting && evaluationCount === 0 ? NONE : evaluations.slice(0, evaluationCount);
-  const findingList = counting && findingCount === 0 ? NONE : findings.slice(0, findingCount);
+  const evaluationList = counting && evaluationCount === 0 ? NONE : leading(evaluations, evaluationCount);
+  const findingList = counting && findingCount === 0 ? NONE : leading(findings, findingCount);
   if (counting) return countedCheck(site, layer, input, origin, evaluationList, findingList);
   const withConstant = keepConstant || site.constant !== undefined;
   if (!withConstant && site.gradient === true) {
@@ -446,6 +446,26 @@ function countedCheck(
   check.findings = findings;
   check.constant = site.constant;
   return check;
+}
+
+// The first n items of a working array as an array of their own, at its exact length: by a literal for the counts a site
+// has (at most four evaluations, fewer findings), which the compiler allocates in place, where a call of slice took ~10%
+// of the sites' judgement (the 1,000-layer check's 2,502 sites, two lists each); slice past that
+function leading<T>(items: T[], n: number): T[] {
+  switch (n) {
+    case 0:
+      return [];
+    case 1:
+      return [items[0] as T];
+    case 2:
+      return [items[0] as T, items[1] as T];
+    case 3:
+      return [items[0] as T, items[1] as T, items[2] as T];
+    case 4:
+      return [items[0] as T, items[1] as T, items[2] as T, items[3] as T];
+    default:
+      return items.slice(0, n);
+  }
 }
 
 // evaluateHazard's working arrays (it runs to completion before it is entered again)
