@@ -11,7 +11,7 @@ import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalLogPdf, normalSf as preciseNormalSf, normalUpperQuantile as preciseUpperQuantile } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
-import { energyBelowAtMost, gaussianAt, settledAnyAbove, settledEnergyBelow } from "./settle.js";
+import { energyBelowAtMost, FAR_DRAW, gaussianAt, SETTLED, settledAnyAbove, settledEnergyBelow } from "./settle.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -1027,7 +1027,7 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
     if (!(counting && anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2))) {
       context.overflowQuietShown = false;
       const sum = scaledIn(SUM_SCALED, output, lossScale);
-      if (settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
+      if (!farQuiet(sum, level) && settledAnyAbove(sum, level, nonzeroElements(sum)) !== 0) overflow = Math.max(overflow, probabilityAnyAbove(sum, level));
     } else if (!shownAtEveryLower(output)) context.overflowQuietShown = false;
   }
   let lost = 0;
@@ -1203,11 +1203,11 @@ function gradientSumSides(
     if (sides) endOverflow = countedOverflow(endSummed, endLevel, overflowFinding / 2);
   } else if (!sides) {
     startOverflow = probabilityAnyAbove(startSummed, startLevel);
-  } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
+  } else if (farQuiet(startSummed, startLevel) || settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
     startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
   } else {
-    const endSettled = settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0;
+    const endSettled = farQuiet(endSummed, endLevel) || settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0;
     if (!endSettled && overflowReach(endSummed, endLevel) > overflowReach(startSummed, startLevel)) {
       // the end likely the larger: integrated first, the start then bounded beside it
       endOverflow = probabilityAnyAbove(endSummed, endLevel);
@@ -1501,6 +1501,24 @@ function floorU(a: number, x: number): number {
   // (pow2: exact down to the least subnormal, 0 past it)
   return a * pow2(-j);
 }
+// Whether settledAnyAbove(profile, t, nonzeroElements(profile)) gives 0 (src/risk/settle.ts), shown without its logarithm
+// and exponential, where that already decides (a backward sum in binary32 sits a hundred binades and more below the
+// level): its test ln n − high²/2 < ln(SETTLED/4), high = (t/rms)·Math.exp(−m·FAR_DRAW) with m = S·ln 2, holds where
+// LN_COUNT_CAP − low²/2 is below that bound, low = floorU(t/rms, m·FAR_DRAW) at most its high (floorU) and ln n at most
+// LN_COUNT_CAP up to COUNT_CAP, each number computed as settledAnyAbove computes it and every rounding between monotone
+// (a larger high, an infinite one included, leaves the difference no larger); false where it cannot tell
+function farQuiet(profile: MagnitudeProfile, t: number): boolean {
+  if (!gaussianAt(profile, t) || !(t > 0)) return false;
+  // (nonzeroElements' number, as it computes it)
+  const n = Math.max(0, profile.elements * (1 - profile.zeroFraction));
+  if (!(n > 0) || !(n <= COUNT_CAP)) return false;
+  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  const low = floorU(t / profile.rms, spread * LN2 * FAR_DRAW);
+  return LN_COUNT_CAP - (low * low) / 2 < LOG_FAR_SHARE;
+}
+// settle.ts's bound on ln n − high²/2, computed as it computes it
+const LOG_FAR_SHARE = Math.log(SETTLED / 4);
+
 // the last p and n anyAboveBounded was asked with, the row of p's binade and ln n
 let atMostP = Number.NaN;
 let atMostAt = 0;
