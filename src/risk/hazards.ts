@@ -11,7 +11,7 @@ import { blockScaledRiskCached, type BlockScaledRisk } from "./blocks.js";
 import { normalLogPdf, normalSf as preciseNormalSf, normalUpperQuantile as preciseUpperQuantile } from "../numeric/normal.js";
 import { DRAW_LIMIT, elementLaw, overDraws } from "./laws.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove, profileStatistics } from "./profile.js";
-import { energyBelowAtMost, FAR_DRAW, gaussianAt, SETTLED, settledAnyAbove, settledEnergyBelow } from "./settle.js";
+import { DENSITY, energyBelowAtMost, FAR_DRAW, gaussianAt, SETTLED, settledAnyAbove, settledEnergyBelow } from "./settle.js";
 import { overflowAtRiskThreshold, perTensorScaleLog2, worstVerdict } from "./tensor.js";
 import { VERDICT_RANK } from "./verdict-order.js";
 import type { Finding, FindingKind, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
@@ -1033,7 +1033,7 @@ function gradientAccumulation(site: HazardSite, input: MagnitudeProfile, output:
   let lost = 0;
   if (!(counting && energyBelowAtMost(input, flushBound / lossScale, Math.min(t.energyAtRisk, t.energyFails) / 2))) {
     if (scaled === null) scaled = scaledIn(TERMS_SCALED, input, lossScale);
-    lost = settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
+    lost = farAbove(scaled, flushBound) || settledEnergyBelow(scaled, flushBound) === 0 ? 0 : energyBelow(scaled, flushBound);
   }
   grade(sumRoundingError(terms, limits.unitRoundoff), t.accumulationAtRisk, t.accumulationFails, 0, Number.NaN);
   putGraded(list, limits, "accumulate", "relative-error", "accumulation-error", false, GRADIENT_ACCUMULATION_ERROR, false);
@@ -1516,6 +1516,26 @@ function farQuiet(profile: MagnitudeProfile, t: number): boolean {
   const low = floorU(t / profile.rms, spread * LN2 * FAR_DRAW);
   return LN_COUNT_CAP - (low * low) / 2 < LOG_FAR_SHARE;
 }
+/**
+ * Whether settledEnergyBelow(profile, t) gives 0 (src/risk/settle.ts), shown without a logarithm or an exponential where
+ * the level lies far below the scale (a backward sum's terms against binary32's flush bound): with c = (DENSITY/3)·(t/rms)³
+ * and m = 3·S·ln 2 as it computes them, c ≤ 2^−K for K ≥ (m² + 8.65·m + 41)/ln 2 + 1 puts ln c below −(m² + 8.65·m + 41)
+ * − ln 2, so that in capSettled the crossing ln c/m is below −8.65 (past −FAR_DRAW), z* + m below 0, ln c + m²/2 − ln 2
+ * below LOG_SETTLED, and its two tail bounds, under φ(8.65)/8.65 and e^−40, together far below SETTLED/2: it returns
+ * true, as it does for m = 0 (c < SETTLED). Own algebra; the margins (a binade in K, orders of magnitude in the tails)
+ * stand for Math.log's and Math.exp's roundings. False where it cannot tell.
+ */
+function farAbove(profile: MagnitudeProfile, t: number): boolean {
+  if (!gaussianAt(profile, t)) return false;
+  const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
+  const a = t / profile.rms;
+  const c = (DENSITY / 3) * a * a * a;
+  const m = 3 * spread * LN2;
+  const k = Math.ceil((m * m + 8.65 * m + 41) * Math.LOG2E) + 1;
+  // (pow2: 0 past the least subnormal, where this cannot tell)
+  return c <= pow2(-k);
+}
+
 // settle.ts's bound on ln n − high²/2, computed as it computes it
 const LOG_FAR_SHARE = Math.log(SETTLED / 4);
 
