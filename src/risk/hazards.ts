@@ -1203,11 +1203,11 @@ function gradientSumSides(
     if (sides) endOverflow = countedOverflow(endSummed, endLevel, overflowFinding / 2);
   } else if (!sides) {
     startOverflow = probabilityAnyAbove(startSummed, startLevel);
-  } else if (farQuiet(startSummed, startLevel) || settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
+  } else if (settledAnyAbove(startSummed, startLevel, nonzeroElements(startSummed)) === 0) {
     endOverflow = probabilityAnyAbove(endSummed, endLevel);
     startOverflow = endOverflow > SETTLED_SIDE ? SETTLED_SIDE : probabilityAnyAbove(startSummed, startLevel);
   } else {
-    const endSettled = farQuiet(endSummed, endLevel) || settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0;
+    const endSettled = settledAnyAbove(endSummed, endLevel, nonzeroElements(endSummed)) === 0;
     if (!endSettled && overflowReach(endSummed, endLevel) > overflowReach(startSummed, startLevel)) {
       // the end likely the larger: integrated first, the start then bounded beside it
       endOverflow = probabilityAnyAbove(endSummed, endLevel);
