@@ -1508,7 +1508,7 @@ function floorU(a: number, x: number): number {
 // LN_COUNT_CAP − low²/2 is below that bound, low = floorU(t/rms, m·FAR_DRAW) at most its high (floorU) and ln n at most
 // LN_COUNT_CAP up to COUNT_CAP, each number computed as settledAnyAbove computes it and every rounding between monotone
 // (a larger high, an infinite one included, leaves the difference no larger); false where it cannot tell
-function farQuiet(profile: MagnitudeProfile, t: number): boolean {
+export function farQuiet(profile: MagnitudeProfile, t: number): boolean {
   if (!gaussianAt(profile, t) || !(t > 0)) return false;
   // (nonzeroElements' number, as it computes it)
   const n = Math.max(0, profile.elements * (1 - profile.zeroFraction));
@@ -1526,7 +1526,7 @@ function farQuiet(profile: MagnitudeProfile, t: number): boolean {
  * true, as it does for m = 0 (c < SETTLED). Own algebra; the margins (a binade in K, orders of magnitude in the tails)
  * stand for Math.log's and Math.exp's roundings. False where it cannot tell.
  */
-function farAbove(profile: MagnitudeProfile, t: number): boolean {
+export function farAbove(profile: MagnitudeProfile, t: number): boolean {
   if (!gaussianAt(profile, t)) return false;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
   const a = t / profile.rms;
