@@ -4,31 +4,12 @@ import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { energyBelow, nonzeroElements, probabilityAnyAbove } from "../../src/risk/profile.js";
 import { settledAnyAbove, settledEnergyBelow } from "../../src/risk/settle.js";
 import { farAbove, farQuiet } from "../../src/risk/hazards.js";
+import { profilesWithThreshold } from "./random-profiles.js";
 
 // The hazards' exp-free first tests (src/risk/hazards.ts farQuiet, farAbove) stand for a result of src/risk/settle.ts:
 // wherever they answer true, settle.ts must give exactly 0 (and the draw integrals of src/risk/profile.ts stay within
 // their 1e-12 absolute, README), over thresholds from a few binades to hundreds of binades from the rms.
-const profiles = fc
-  .record({
-    shape: fc.constantFrom("gaussian", "half-gaussian", "bounded"),
-    log2Rms: fc.double({ min: -120, max: 120, noNaN: true }),
-    spread: fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 4.5, noNaN: true })),
-    log2Count: fc.double({ min: 0, max: 40, noNaN: true }),
-    zeroFraction: fc.oneof(fc.constant(0), fc.double({ min: 0, max: 0.9, noNaN: true })),
-    // the threshold in binades from the rms: from near it to far past where the tests can tell
-    log2Ratio: fc.double({ min: -250, max: 250, noNaN: true }),
-  })
-  .map((x) => {
-    const rms = 2 ** x.log2Rms;
-    const profile: MagnitudeProfile = {
-      elements: Math.floor(2 ** x.log2Count),
-      zeroFraction: x.zeroFraction,
-      shape: x.shape,
-      rms,
-      log2Spread: x.spread,
-    };
-    return { profile, t: rms * 2 ** x.log2Ratio };
-  });
+const profiles = profilesWithThreshold({ log2Rms: 120, log2Count: 40, log2Ratio: 250, bounds: false });
 
 describe("the hazards' exp-free first tests", () => {
   it("answer true only where settle.ts gives exactly 0, and do answer true far from the rms", () => {

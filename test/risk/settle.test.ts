@@ -14,6 +14,7 @@ import { overDraws } from "../../src/risk/laws.js";
 import { evaluateHazard } from "../../src/risk/hazards.js";
 import { context, site } from "./hazard-sites.js";
 import { BINARY16, BINARY32 } from "./limits.js";
+import { gaussianShapes, profilesWithThreshold } from "./random-profiles.js";
 
 // The bounds of src/risk/settle.ts report a share or probability as 0 (or an overflow probability as 1) without its draw
 // integral. The bound they are held to: within 1e-12 absolute of the integral src/risk/profile.ts takes (README: the
@@ -55,33 +56,8 @@ function energy(r: number, t: number): number {
 // 1 − (1 − p)^n without cancellation
 const anyOf = (p: number, n: number): number => (p >= 1 ? 1 : -Math.expm1(n * Math.log1p(-p)));
 
-const gaussianShapes = ["gaussian", "half-gaussian", "bounded"] as const;
-
-const profiles = fc
-  .record({
-    shape: fc.constantFrom(...gaussianShapes),
-    log2Rms: fc.double({ min: -60, max: 60, noNaN: true }),
-    // no spread, or one of at least 1e-3 binade (the draw rule of src/risk/laws.ts is not made for subnormal spreads)
-    spread: fc.oneof(fc.constant(0), fc.double({ min: 1e-3, max: 4.5, noNaN: true })),
-    log2Count: fc.double({ min: 0, max: 24, noNaN: true }),
-    zeroFraction: fc.oneof(fc.constant(0), fc.double({ min: 0, max: 0.9, noNaN: true })),
-    // the bound in binades above the rms (none: −1)
-    boundAbove: fc.oneof(fc.constant(-1), fc.double({ min: 0, max: 30, noNaN: true })),
-    // the threshold in binades from the rms: far from it in both directions, where the bounds settle
-    log2Ratio: fc.double({ min: -45, max: 45, noNaN: true }),
-  })
-  .map((x) => {
-    const rms = 2 ** x.log2Rms;
-    const profile: MagnitudeProfile = {
-      elements: Math.floor(2 ** x.log2Count),
-      zeroFraction: x.zeroFraction,
-      shape: x.shape,
-      rms,
-      log2Spread: x.spread,
-      bound: x.boundAbove >= 0 ? rms * 2 ** x.boundAbove : undefined,
-    };
-    return { profile, t: rms * 2 ** x.log2Ratio };
-  });
+// the threshold far from the rms in both directions, where the bounds settle
+const profiles = profilesWithThreshold({ log2Rms: 60, log2Count: 24, log2Ratio: 45, bounds: true });
 
 describe("settled shares and probabilities (src/risk/settle.ts)", () => {
   it("are within 1e-12 of the draw integrals of src/risk/profile.ts, and settle a good share of far thresholds", () => {
