@@ -1327,6 +1327,76 @@ function countedSums(site: HazardSite, siteEnd: HazardSite["end"] | null, contex
   }
 }
 
+/**
+ * Whether a count (HazardContext.countOnly) of a gradient site, a gradient sum in a format without scale factors or a
+ * gradient's accumulation, leaves no evaluation past a threshold, told by the first tests the count takes
+ * (countedSums, gradientAccumulation), in their order and with their numbers: every overflow bound and every flushed-share
+ * bound passed (each number then stands as 0, graded "fits"), and the sum's rounding error fitting. True only then,
+ * with the context's overflowQuietShown left as the count leaves it; false says nothing (the count is taken whole, after
+ * judge.ts judgeScaled sets overflowQuietShown afresh). The count's drafts, records and lists are then not made.
+ */
+export function countedQuiet(site: HazardSite, context: HazardContext): boolean {
+  const t = context.thresholds;
+  const lossScale = context.lossScale;
+  const terms = Math.max(1, site.terms);
+  const known = context.overflowQuietKnown === true;
+  // as hazardCheck takes the end: only where its profiles are not the start's own
+  const siteEnd = site.end;
+  const endJudged = siteEnd !== undefined && !(siteEnd.input === site.input && (siteEnd.output === undefined || siteEnd.output === site.output));
+  if (site.kind === "gradient-sum") {
+    const limits = context.gradientSums;
+    if (FORMATS[limits.format].bits === 8 && (context.scaling ?? "none") !== "none") return false;
+    const error = sumRoundingError(terms, limits.unitRoundoff);
+    const overflowAtRisk = overflowAtRiskThreshold(t, false);
+    if (error > t.accumulationAtRisk || error > t.accumulationFails || 0 > overflowAtRisk || 0 > t.overflowFails) return false;
+    if (!known) {
+      const level = limits.overflowLevel;
+      const overflowBound = Math.min(overflowAtRisk, t.overflowFails) / 2;
+      const startSum = site.output !== undefined ? site.output : site.input;
+      const startFactor = site.output !== undefined ? lossScale : lossScale * terms;
+      if (!anyAboveAtMost(startSum, level / startFactor, nonzeroElements(startSum), overflowBound)) return false;
+      if (!shownAtEveryLower(startSum)) context.overflowQuietShown = false;
+      if (endJudged) {
+        const endOutput = siteEnd.output !== undefined ? siteEnd.output : site.output;
+        const endSum = endOutput !== undefined ? endOutput : siteEnd.input;
+        const endFactor = endOutput !== undefined ? lossScale : lossScale * terms;
+        if (!anyAboveAtMost(endSum, level / endFactor, nonzeroElements(endSum), overflowBound)) return false;
+        if (!shownAtEveryLower(endSum)) context.overflowQuietShown = false;
+      }
+    }
+    if (context.workerGradients === "average" && context.workers > 1) {
+      if (0 > t.energyAtRisk || 0 > t.energyFails) return false;
+      const bound = Math.min(t.energyAtRisk, t.energyFails) / 2;
+      const level = (limits.flushBound * context.workers) / lossScale;
+      if (!energyBelowAtMost(site.input, level, bound)) return false;
+      if (endJudged && !energyBelowAtMost(siteEnd.input, level, bound)) return false;
+    }
+    return true;
+  }
+  if (site.kind !== "accumulation" || site.gradient !== true) return false;
+  const limits = context.accumulate;
+  const error = sumRoundingError(terms, limits.unitRoundoff);
+  if (error > t.accumulationAtRisk || error > t.accumulationFails || 0 > t.overflowAtRisk || 0 > t.overflowFails || 0 > t.energyAtRisk || 0 > t.energyFails) return false;
+  if (!accumulationQuiet(site.input, site.output, terms, known, context)) return false;
+  return !endJudged || accumulationQuiet(siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, terms, known, context);
+}
+
+// one side of countedQuiet's gradient accumulation: gradientAccumulation's count tests, in its order
+function accumulationQuiet(input: MagnitudeProfile, output: MagnitudeProfile | undefined, terms: number, known: boolean, context: HazardContext): boolean {
+  const t = context.thresholds;
+  const lossScale = context.lossScale;
+  const limits = context.accumulate;
+  if (!known) {
+    const level = limits.overflowLevel;
+    if (!sumFarBelow(input, level / lossScale, terms)) return false;
+    if (output !== undefined) {
+      if (!anyAboveAtMost(output, level / lossScale, nonzeroElements(output), Math.min(t.overflowAtRisk, t.overflowFails) / 2)) return false;
+      if (!shownAtEveryLower(output)) context.overflowQuietShown = false;
+    }
+  }
+  return energyBelowAtMost(input, limits.flushBound / lossScale, Math.min(t.energyAtRisk, t.energyFails) / 2);
+}
+
 // a summed side's overflow probability where only its finding counts (no scale factors): 0 where the bound keeps it at
 // most `bound`, else that of `sum` times `factor`, scaled into `slot` (the context's overflowQuietShown kept as it is
 // only where the bound shows it at every smaller scale)

@@ -20,7 +20,7 @@ import { lossScaleProblem } from "../spec/limits.js";
 import { withProfiles } from "../magnitude/copy.js";
 import type { LayerFamily, NetworkSpec, PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_THRESHOLDS } from "./catalogue.js";
-import { evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
+import { countedQuiet, evaluateHazard, evaluateSite, type HazardContext } from "./hazards.js";
 import { rangeLimits, sameDistribution } from "./profile.js";
 import { byRms, clippedWeightGradients, hasSite, weightGradientsOf } from "./second-moments.js";
 import {
@@ -500,6 +500,12 @@ export function judgeScaled(
       const shows = site.kind === "gradient-sum" || (site.kind === "accumulation" && site.gradient === true);
       const knownAbove = quiet[i] as number;
       context.overflowQuietKnown = shows && lossScale <= knownAbove;
+      context.overflowQuietShown = true;
+      // a gradient site whose count's first tests all pass leaves no finding: its drafts and record are not made
+      if (shows && countedQuiet(site, context)) {
+        if (context.overflowQuietShown && lossScale > knownAbove) quiet[i] = lossScale;
+        continue;
+      }
       context.overflowQuietShown = true;
       const checked = evaluateHazard(site, context, origin);
       if (shows && context.overflowQuietShown && lossScale > knownAbove) quiet[i] = lossScale;

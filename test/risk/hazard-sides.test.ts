@@ -2,7 +2,7 @@ import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
 import type { HazardSite, MagnitudeProfile } from "../../src/magnitude/types.js";
 import { evaluateHazard, plainNumber, type HazardContext, type HazardEvaluation } from "../../src/risk/index.js";
-import { anyAboveAtMost } from "../../src/risk/hazards.js";
+import { anyAboveAtMost, countedQuiet } from "../../src/risk/hazards.js";
 import { nonzeroElements, probabilityAnyAbove } from "../../src/risk/profile.js";
 import { settledAnyAbove } from "../../src/risk/settle.js";
 import { normalLogPdf, normalSf, normalUpperQuantile } from "../../src/numeric/normal.js";
@@ -144,6 +144,69 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     );
     // findings were there to count in a good share of the runs
     expect(found).toBeGreaterThan(200);
+  });
+
+  // judge.ts judgeScaled skips the count of a gradient site that countedQuiet calls quiet: the count must then find
+  // nothing and keep no evaluation, and leave HazardContext.overflowQuietShown as countedQuiet leaves it. Each of its
+  // tests is needed: where the overflow bound or the flushed-share bound does not pass, some counts find something, so a
+  // shortcut without either would fail the first check.
+  it("a gradient site countedQuiet calls quiet leaves a count no finding, and the overflow side as the count shows it (property)", () => {
+    let quiet = 0;
+    let overflowLeft = 0;
+    let flushLeft = 0;
+    fc.assert(
+      fc.property(
+        gaussianLike,
+        fc.oneof(fc.double({ min: -90, max: 90, noNaN: true }), fc.double({ min: -0.5, max: 0.5, noNaN: true }), fc.constant(0)),
+        fc.integer({ min: 1, max: 64 }),
+        fc.boolean(),
+        plans,
+        fc.constantFrom(BINARY16, BINARY32),
+        fc.boolean(),
+        (drawn, shift, terms, withOutput, plan, accumulate, known) => {
+          const ctx = context({
+            gradients: plan.sums,
+            accumulate,
+            scaling: plan.scaling,
+            workers: plan.workers,
+            workerGradients: plan.workerGradients,
+            lossScale: 2 ** plan.log2LossScale,
+            countOnly: true,
+          });
+          const startOutput = withOutput ? toProfile(drawn, Math.log2(terms)) : undefined;
+          const endOutput = withOutput ? toProfile(drawn, shift + Math.log2(terms)) : undefined;
+          const ends = { end: { input: toProfile(drawn, shift), ...(endOutput ? { output: endOutput } : {}) } };
+          const sites = [
+            site({ kind: "gradient-sum", terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}), ...ends }),
+            site({ kind: "gradient-sum", terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}) }),
+            site({ kind: "accumulation", gradient: true, terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}), ...ends }),
+            site({ kind: "accumulation", gradient: true, terms, input: toProfile(drawn), ...(startOutput ? { output: startOutput } : {}) }),
+          ];
+          for (const judged of sites) {
+            const shortcut: HazardContext = { ...ctx, overflowQuietKnown: known, overflowQuietShown: true };
+            const counted: HazardContext = { ...ctx, overflowQuietKnown: known, overflowQuietShown: true };
+            const said = countedQuiet(judged, shortcut);
+            const check = evaluateHazard(judged, counted);
+            const findings = check.findings.filter((f) => f.kind !== "accumulation-error").length;
+            if (said) {
+              quiet++;
+              expect(check.findings).toEqual([]);
+              expect(check.evaluations).toEqual([]);
+              expect(shortcut.overflowQuietShown).toBe(counted.overflowQuietShown);
+            } else if (findings > 0) {
+              // what a shortcut without the overflow bound, or without the flushed-share bound, would have missed
+              if (check.findings.some((f) => f.kind.endsWith("overflow"))) overflowLeft++;
+              if (check.findings.some((f) => f.kind.endsWith("flush") || f.kind === "gradient-energy-flushed")) flushLeft++;
+            }
+          }
+        },
+      ),
+      { numRuns: 500 },
+    );
+    // not vacuous: the shortcut decides many sites, and many it leaves have findings of each side
+    expect(quiet).toBeGreaterThan(200);
+    expect(overflowLeft).toBeGreaterThan(20);
+    expect(flushLeft).toBeGreaterThan(20);
   });
 
   it("an end without a predicted sum of its own takes the start's, as each side alone does", () => {
