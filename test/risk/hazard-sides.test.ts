@@ -108,6 +108,16 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     );
   });
 
+  // a sum's drawn terms, the end's shift from the start in binades (far, near or none), the term count, whether the
+  // site has its own output profile, and the plan: the cases of the two count properties below
+  const sumCases = fc.tuple(
+    gaussianLike,
+    fc.oneof(fc.double({ min: -90, max: 90, noNaN: true }), fc.double({ min: -0.5, max: 0.5, noNaN: true }), fc.constant(0)),
+    fc.integer({ min: 1, max: 64 }),
+    fc.boolean(),
+    plans,
+  );
+
   // A weighed loss scale's judgement only counts findings (HazardContext.countOnly): it takes a side's number as 0 where
   // a closed-form bound puts it under half the lower threshold, and keeps the evaluations that do not fit. Its findings
   // must be the full judgement's, kind, severity, value and threshold, and its evaluations the full judgement's that do
@@ -116,12 +126,8 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     let found = 0;
     fc.assert(
       fc.property(
-        gaussianLike,
-        fc.oneof(fc.double({ min: -90, max: 90, noNaN: true }), fc.double({ min: -0.5, max: 0.5, noNaN: true }), fc.constant(0)),
-        fc.integer({ min: 1, max: 64 }),
-        fc.boolean(),
-        plans,
-        (drawn, shift, terms, withOutput, plan) => {
+        sumCases,
+        ([drawn, shift, terms, withOutput, plan]) => {
           const ctx = context({ gradients: plan.sums, scaling: plan.scaling, workers: plan.workers, workerGradients: plan.workerGradients, lossScale: 2 ** plan.log2LossScale });
           const startOutput = withOutput ? toProfile(drawn, Math.log2(terms)) : undefined;
           const endOutput = withOutput ? toProfile(drawn, shift + Math.log2(terms)) : undefined;
@@ -156,14 +162,10 @@ describe("a gradient sum judged at the start and the end of the horizon", () => 
     let flushLeft = 0;
     fc.assert(
       fc.property(
-        gaussianLike,
-        fc.oneof(fc.double({ min: -90, max: 90, noNaN: true }), fc.double({ min: -0.5, max: 0.5, noNaN: true }), fc.constant(0)),
-        fc.integer({ min: 1, max: 64 }),
-        fc.boolean(),
-        plans,
+        sumCases,
         fc.constantFrom(BINARY16, BINARY32),
         fc.boolean(),
-        (drawn, shift, terms, withOutput, plan, accumulate, known) => {
+        ([drawn, shift, terms, withOutput, plan], accumulate, known) => {
           const ctx = context({
             gradients: plan.sums,
             accumulate,
