@@ -285,9 +285,7 @@ function hazardCheck(site: HazardSite, context: HazardContext, origin: HazardChe
   const network = site.kind === "optimizer-constant" && origin === "training setup" && context.weightGradients !== undefined;
   const siteEnd = site.end;
   const ended = siteEnd !== undefined || network;
-  // An end whose profiles are the start's own (a forward sum where the weights do not grow) would give the start's drafts
-  // again, number for number: the start is then the one reported (isWorse: a tie keeps it), as it is with no end drafts
-  const endJudged = siteEnd !== undefined && !(siteEnd.input === site.input && (siteEnd.output === undefined || siteEnd.output === site.output));
+  const endJudged = judgesEnd(site, siteEnd);
   if (endJudged && site.kind === "gradient-sum") {
     // both sides at once: only the worse of each is reported, and a far smaller one need not be integrated
     gradientSumSides(site, siteEnd, context, start, end);
@@ -1340,9 +1338,8 @@ export function countedQuiet(site: HazardSite, context: HazardContext): boolean 
   const lossScale = context.lossScale;
   const terms = Math.max(1, site.terms);
   const known = context.overflowQuietKnown === true;
-  // as hazardCheck takes the end: only where its profiles are not the start's own
   const siteEnd = site.end;
-  const endJudged = siteEnd !== undefined && !(siteEnd.input === site.input && (siteEnd.output === undefined || siteEnd.output === site.output));
+  const endJudged = judgesEnd(site, siteEnd);
   if (site.kind === "gradient-sum") {
     const limits = context.gradientSums;
     if (FORMATS[limits.format].bits === 8 && (context.scaling ?? "none") !== "none") return false;
@@ -1379,6 +1376,13 @@ export function countedQuiet(site: HazardSite, context: HazardContext): boolean 
   if (error > t.accumulationAtRisk || error > t.accumulationFails || 0 > t.overflowAtRisk || 0 > t.overflowFails || 0 > t.energyAtRisk || 0 > t.energyFails) return false;
   if (!accumulationQuiet(site.input, site.output, terms, known, context)) return false;
   return !endJudged || accumulationQuiet(siteEnd.input, siteEnd.output !== undefined ? siteEnd.output : site.output, terms, known, context);
+}
+
+// Whether a site's end is judged apart from its start: an end whose profiles are the start's own (a forward sum where the
+// weights do not grow) would give the start's drafts again, number for number, so the start is then the one reported
+// (isWorse: a tie keeps it), as it is with no end drafts
+function judgesEnd(site: HazardSite, siteEnd: HazardSite["end"]): siteEnd is NonNullable<HazardSite["end"]> {
+  return siteEnd !== undefined && !(siteEnd.input === site.input && (siteEnd.output === undefined || siteEnd.output === site.output));
 }
 
 // one side of countedQuiet's gradient accumulation: gradientAccumulation's count tests, in its order
@@ -1580,8 +1584,7 @@ function floorU(a: number, x: number): number {
 // (a larger high, an infinite one included, leaves the difference no larger); false where it cannot tell
 export function farQuiet(profile: MagnitudeProfile, t: number): boolean {
   if (!gaussianAt(profile, t) || !(t > 0)) return false;
-  // (nonzeroElements' number, as it computes it)
-  const n = Math.max(0, profile.elements * (1 - profile.zeroFraction));
+  const n = nonzeroElements(profile);
   if (!(n > 0) || !(n <= COUNT_CAP)) return false;
   const spread = profile.log2Spread > 0 ? profile.log2Spread : 0;
   const low = floorU(t / profile.rms, spread * LN2 * FAR_DRAW);

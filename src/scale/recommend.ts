@@ -608,6 +608,12 @@ const PAIR = new Float64Array(2);
 // one profile's quick moment bounds (BoundedCurves.quickOf)
 const QUICK = new Float64Array(2);
 
+// the lower bound on the overflow probability from the product Π(1 − low_i), widened by `widen` for its rounding
+// (OverflowNarrowing.update)
+function overflowLow(noneHigh: number, widen: number): number {
+  return Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
+}
+
 // the tensors whose shifted-tail constants a horizon point makes at once (HorizonPoint.makeShifts)
 const SHIFT_BLOCK = 128;
 // one tensor's shifted-tail bounds in the simulation's sweep
@@ -940,7 +946,7 @@ class HorizonPoint {
       if (!integrated) waiting = 1;
       noneHigh *= 1 - lows[i]!;
       noneLow *= 1 - high;
-      if (1 - (noneHigh * (1 + widen) + 1e-300) >= 1 && k + 1 < count) {
+      if (overflowLow(noneHigh, widen) >= 1 && k + 1 < count) {
         live.copyWithin(kept, k + 1, count);
         into[0] = noneHigh;
         into[1] = 0;
@@ -1387,7 +1393,7 @@ class OverflowNarrowing implements OverflowBounds {
   // low and high from the products Π(1 − low_i) (noneHigh) and Π(1 − high_i) (noneLow), as update() describes
   private boundBy(noneHigh: number, noneLow: number): void {
     const widen = this.widen();
-    this.low = Math.max(0, 1 - (noneHigh * (1 + widen) + 1e-300));
+    this.low = overflowLow(noneHigh, widen);
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
   }

@@ -158,9 +158,9 @@ export function lossScaleWindows(
     shared = { search: earlier, shift: flushLike.shift };
   }
   const search = new WindowSearch(tensors, o, shared, uniqueIds);
-  // each id set aside, its tensors: found by comparing the few ids set aside with every tensor's, kept for the next set
-  // (a remedy sets aside a few tensors, adding one at a time; a map of every id would hash all of them, most never
-  // asked for)
+  // each id set aside, its tensors: the one a window named as an edge's setter where the ids are unique (setterAt), else
+  // found by comparing the few ids set aside with every tensor's; kept for the next set (a remedy sets aside a few
+  // tensors, adding one at a time; a map of every id would hash all of them, most never asked for)
   const indicesOf = new Map<string, number[]>();
   // each set aside's window, by its ids sorted: the remedies try the setters of both edges, often the same tensors
   // (the search is exact for a set, so a window found once is the window)
@@ -178,12 +178,15 @@ export function lossScaleWindows(
         let indices = indicesOf.get(id);
         if (indices === undefined) {
           const at = search.setterAt(id);
-          indices = at === undefined ? [] : [at];
-          if (at === undefined && ids === undefined) {
-            ids = new Array<string>(tensors.length);
-            for (let i = 0; i < tensors.length; i++) ids[i] = (tensors[i] as ScaledTensorCurves).id;
+          if (at !== undefined) indices = [at];
+          else {
+            if (ids === undefined) {
+              ids = new Array<string>(tensors.length);
+              for (let i = 0; i < tensors.length; i++) ids[i] = (tensors[i] as ScaledTensorCurves).id;
+            }
+            indices = [];
+            for (let i = 0; i < ids.length; i++) if (ids[i] === id) indices.push(i);
           }
-          if (at === undefined) for (let i = 0; i < ids!.length; i++) if (ids![i] === id) indices.push(i);
           indicesOf.set(id, indices);
         }
         for (let j = 0; j < indices.length; j++) active[indices[j] as number] = 0;
@@ -450,13 +453,12 @@ class WindowSearch {
     // lowest k with every tensor's flushing tolerated: the largest of the tensors' own flush edges
     const lowest = this.flushEdge(active);
 
+    const empty = highest === null || lowest === null || lowest > highest;
     // an empty window's scans keep their bounds for the subsets' windows that may follow (the loss-scale answer's
     // remedies, which come with an empty window only)
-    const keep = highest === null || lowest === null || lowest > highest;
-    const upperEdgeSetBy = this.setter(highest === null ? this.worst("overflow", o.lowestLog2, active, keep) : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active, keep) : -1);
-    const lowerEdgeSetBy = this.setter(lowest === null ? this.worst("flush", o.highestLog2, active, keep) : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active, keep) : -1);
+    const upperEdgeSetBy = this.setter(highest === null ? this.worst("overflow", o.lowestLog2, active, empty) : highest < o.highestLog2 ? this.worst("overflow", highest + 1, active, empty) : -1);
+    const lowerEdgeSetBy = this.setter(lowest === null ? this.worst("flush", o.highestLog2, active, empty) : lowest > o.lowestLog2 ? this.worst("flush", lowest - 1, active, empty) : -1);
 
-    const empty = highest === null || lowest === null || lowest > highest;
     let pick: number | null = null;
     if (!empty) {
       // the centre in binades leaves the most room on both sides for the prediction's own error; a scale costs
