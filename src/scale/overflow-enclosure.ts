@@ -312,8 +312,17 @@ function enclosed(valueA: number, valueB: number, bound: number, into: Float64Ar
  */
 export function enclosureQuick(a: LevelMoments, b: LevelMoments, s: number, x: number, into: Float64Array, at: number): boolean {
   if (!Number.isFinite(x)) return false;
-  enclosed(taylorValue(x, s, a), taylorValue(x, s, b), (INNER_PEAK * Math.max(a.fourth, b.fourth)) / (24 * s * s * s * s), into, at);
+  enclosed(taylorValue(x, s, a), taylorValue(x, s, b), quickRemainder(a, b, s), into, at);
   return true;
+}
+
+/**
+ * {@link enclosureQuick}'s remainder bound, the half-width it adds to the Taylor values at every x: its upper bound is
+ * at least this wherever the Taylor value is not negative, so a caller that needs an upper bound below a level this
+ * reaches learns nothing from the quick bounds there (their four tails are then not worth taking).
+ */
+export function quickRemainder(a: LevelMoments, b: LevelMoments, s: number): number {
+  return (INNER_PEAK * Math.max(a.fourth, b.fourth)) / (24 * s * s * s * s);
 }
 
 /**

@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { IndexHeap } from "./heap.js";
-import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, type LevelMoments } from "./overflow-enclosure.js";
+import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -480,12 +480,13 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // The moment bounds with the remainder at its peak (overflow-enclosure.ts enclosureQuick) of the worse of the two
   // profiles at k, as the dynamic simulation's first narrowing takes them: four normal tails and densities per profile
   // in place of the tighter bounds' dozen or more; false where either profile has none (as anyAboveEnclosure: a
-  // Gaussian law of 16 elements or more, a positive rms and spread, t not past a bound)
-  overflowRiskQuickInto(k: number, into: Float64Array): boolean {
+  // Gaussian law of 16 elements or more, a positive rms and spread, t not past a bound), and where a profile's remainder
+  // alone reaches `below` (overflow-enclosure.ts quickRemainder: the upper bound would not come under it)
+  overflowRiskQuickInto(k: number, into: Float64Array, below = Infinity): boolean {
     const t = this.limits.overflowLevel * pow2Below(k);
     if (!(t > 0)) return false;
     const tLog2 = this.overflowLog2(k, t);
-    if (!this.quickOf(0, t, tLog2)) return false;
+    if (!this.quickOf(0, t, tLog2, below)) return false;
     if (this.parts.same) {
       into[0] = QUICK[0]!;
       into[1] = QUICK[1]!;
@@ -493,7 +494,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     }
     const low = QUICK[0]!;
     const high = QUICK[1]!;
-    if (!this.quickOf(1, t, tLog2)) return false;
+    if (!this.quickOf(1, t, tLog2, below)) return false;
     // the worse of two values lies between the larger of their lower bounds and the larger of their upper bounds
     into[0] = Math.max(low, QUICK[0]!);
     into[1] = Math.max(high, QUICK[1]!);
@@ -502,13 +503,16 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
 
   // side 0 the start profile, 1 the end: its quick moment bounds at t into QUICK (the same x = log2 t − log2 rms as
   // anyAboveEnclosure's, from the level table's numbers of the profile)
-  private quickOf(side: number, t: number, tLog2: number): boolean {
+  private quickOf(side: number, t: number, tLog2: number, under: number): boolean {
     this.levelsAt();
     const table = this.levels;
     const j = 2 * this.index + side;
     if (table.applies[j] === 0 || t > table.bound[j]!) return false;
     const below = table.momentsBelow(j, side === 0 ? this.parts.start : this.parts.end);
-    return enclosureQuick(below, table.momentsAbove(j), table.spread[j]!, tLog2 - table.rmsLog2[j]!, QUICK, 0);
+    const above = table.momentsAbove(j);
+    const spread = table.spread[j]!;
+    if (quickRemainder(below, above, spread) >= under) return false;
+    return enclosureQuick(below, above, spread, tLog2 - table.rmsLog2[j]!, QUICK, 0);
   }
 
   private flushUppers(k: number): void {

@@ -54,9 +54,10 @@ export interface ScaledTensorCurves {
   /**
    * optional bounds on overflowRisk into `into` at 0 (low) and 1 (high), false (nothing written) where the curve has
    * none at this exponent: between the rougher bounds and overflowRiskUpper in cost and tightness, for the edge
-   * setter's scan
+   * setter's scan; given `below`, also false where the upper bound could not come below it (the scan then takes the
+   * tighter bound at once)
    */
-  overflowRiskQuickInto?(log2Scale: number, into: Float64Array): boolean;
+  overflowRiskQuickInto?(log2Scale: number, into: Float64Array, below?: number): boolean;
   /**
    * optional guesses of this tensor's own edges (the exponent where its overflow, and its flushing, reach the
    * limits): the searches start there and gallop, which finds the same edges in fewer steps than bisecting the
@@ -978,11 +979,12 @@ class WindowSearch {
 
   // The curve's quick overflow bounds at k taken into the table as takeRough takes the rougher ones (marked as asked, the
   // high lowered, the low raised), so that the later windows of these tensors read them; false when the curve has none
-  private takeQuick(k: number, i: number, table: Table): boolean {
+  // (`floor`: the value to beat; where the quick upper bound cannot come below it the curve says so without them)
+  private takeQuick(k: number, i: number, table: Table, floor: number): boolean {
     const flags = table.flags[i] as number;
     table.flags[i] = flags | HAS_QUICK;
     const quick = this.quick;
-    if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick) !== true) return false;
+    if ((this.tensors[i] as ScaledTensorCurves).overflowRiskQuickInto?.(k, quick, floor) !== true) return false;
     this.takeBounds(i, table, flags, quick[0] as number, quick[1] as number);
     return true;
   }
@@ -1088,7 +1090,7 @@ class WindowSearch {
         if (this.takeRough(k, i, table) && (this.rough[1] as number) < (highs[i] as number)) highs[i] = this.rough[1] as number;
         if ((highs[i] as number) < floor) continue;
       }
-      if (curve === "overflow" && (highs[i] as number) > floor && (highs[i] as number) > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table)) {
+      if (curve === "overflow" && (highs[i] as number) > floor && (highs[i] as number) > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_VALUE | HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table, floor)) {
         // bounds between the rougher and the tighter in cost, where the curve has them: near the largest value they
         // settle most tensors that the rougher bounds leave above it (below QUICK_ABOVE the tighter bound is the
         // shifted tails alone, cheaper still)
@@ -1174,7 +1176,7 @@ class WindowSearch {
       let v: number;
       if (((table.flags[i] as number) & HAS_VALUE) !== 0) v = table.data[4 * i + 3] as number;
       else {
-        if (curve === "overflow" && high > floor && high > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table)) {
+        if (curve === "overflow" && high > floor && high > QUICK_ABOVE && ((table.flags[i] as number) & (HAS_UPPER | HAS_QUICK)) === 0 && this.takeQuick(k, i, table, floor)) {
           if ((table.data[4 * i + 1] as number) < high) high = table.data[4 * i + 1] as number;
           if (high < floor) continue;
         }

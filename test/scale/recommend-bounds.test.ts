@@ -323,6 +323,33 @@ describe("boundedLossScaleCurves", () => {
     expect(offered).toBeGreaterThan(100);
   });
 
+  it("decline the quick overflow bounds only where their upper end would not come below the level asked", () => {
+    // the edge setter's scan passes the largest value found: where the quick bounds' remainder alone reaches it, the
+    // curve declines them; where it gives them, they are the bounds it gives unasked (overflow-enclosure.ts enclosureQuick)
+    const bounded = boundedLossScaleCurves(tensors, limits);
+    const free = new Float64Array(2);
+    const asked = new Float64Array(2);
+    let declined = 0;
+    let given = 0;
+    for (let k = -40; k <= 64; k += 0.5) {
+      bounded.forEach((c) => {
+        if (!c.overflowRiskQuickInto!(k, free)) return;
+        for (const below of [1e-12, 1e-9, 1e-7, 1e-5, 1e-3, 0.1, 0.9]) {
+          asked.fill(NaN);
+          if (c.overflowRiskQuickInto!(k, asked, below)) {
+            given++;
+            expect([...asked]).toEqual([...free]);
+          } else {
+            declined++;
+            expect(free[1]).toBeGreaterThanOrEqual(below);
+          }
+        }
+      });
+    }
+    expect(declined).toBeGreaterThan(50);
+    expect(given).toBeGreaterThan(50);
+  });
+
   it("give the window the plain curves give", () => {
     const plain = lossScaleWindow(lossScaleCurves(tensors, limits));
     expect(lossScaleWindow(boundedLossScaleCurves(tensors, limits))).toEqual(plain);
