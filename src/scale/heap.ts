@@ -1,7 +1,7 @@
 /**
  * A max-heap of tensor indices ordered by a key array: the larger key on top; among equal keys the lower rank
  * (by default the lower index). A tensor's key may change while it is out of the heap, never while it is in.
- * The window search and the dynamic simulation both tighten the largest bound first with it.
+ * The window search tightens the largest bound first with it (the dynamic simulation takes the coarser BucketQueue).
  */
 export class IndexHeap {
   // the heap's indices in a typed array of the keys' length (an index is in the heap at most once), not a growing list
@@ -71,4 +71,66 @@ export class IndexHeap {
     }
     items[j] = i;
   }
+}
+
+// the binary64 words of one key, for its exponent and leading fraction bits (IEEE 754-2019 §3.4: sign, 11 exponent
+// bits, then the fraction, most significant first), in the platform's byte order
+const KEY = new Float64Array(1);
+const KEY_WORDS = new Uint32Array(KEY.buffer);
+const HIGH_WORD = new Uint8Array(Uint16Array.of(1).buffer)[0] === 1 ? 1 : 0;
+
+/**
+ * A queue of indices by a key in [0, 1] that never rises while an index is out of it, popped largest first only to
+ * within a factor 2^(1/4): the keys fall into buckets a quarter binade wide (from the exponent and the two leading
+ * fraction bits of the double), and a pop takes the most recent index of the highest bucket that is not empty. A key
+ * that is not a number comes first; keys at or below 2^−62 share the last bucket. For orders that only steer work (the
+ * dynamic simulation narrows whichever tensor it takes first to the same bounds): a push and a pop cost a few
+ * operations against a heap's logarithm of sift steps.
+ */
+export class BucketQueue {
+  // per bucket its most recent index (−1: empty), per index the one pushed before it into its bucket
+  private readonly heads: Int32Array;
+  private readonly next: Int32Array;
+  // no bucket above this one holds an index (keys do not rise, so a pushed index never lands above it once popped)
+  private top: number;
+  private count = 0;
+  constructor(n: number) {
+    this.heads = new Int32Array(BUCKETS).fill(-1);
+    this.next = new Int32Array(n);
+    this.top = BUCKETS;
+  }
+  get size(): number {
+    return this.count;
+  }
+  /** add index i (in [0, n), not in the queue already) with its key */
+  push(i: number, key: number): void {
+    const b = bucketOf(key);
+    this.next[i] = this.heads[b]!;
+    this.heads[b] = i;
+    if (b < this.top) this.top = b;
+    this.count++;
+  }
+  /** an index of the highest bucket that holds one (the queue not empty) */
+  pop(): number {
+    const heads = this.heads;
+    let b = this.top;
+    while (heads[b]! < 0) b++;
+    this.top = b;
+    const i = heads[b]!;
+    heads[b] = this.next[i]!;
+    this.count--;
+    return i;
+  }
+}
+// one first for keys that are not numbers (and any above 1), four per binade from 1 down to 2^−62 (the binades 2^0
+// … 2^−62 give buckets 1 … 252), one last for keys at or below 2^−62
+const BUCKETS = 254;
+function bucketOf(key: number): number {
+  if (!(key <= 1)) return 0;
+  if (!(key > 2 ** -62)) return BUCKETS - 1;
+  KEY[0] = key;
+  const high = KEY_WORDS[HIGH_WORD]!;
+  // key = 2^e·(1 + f): e in [−62, 0]; the bucket rises with −e and falls with f's two leading bits
+  const e = (high >>> 20) - 1023;
+  return 1 + 4 * -e + (3 - ((high >>> 18) & 3));
 }

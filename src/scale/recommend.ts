@@ -14,7 +14,7 @@ import { exp2 } from "../risk/_math.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
-import { IndexHeap } from "./heap.js";
+import { BucketQueue } from "./heap.js";
 import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
@@ -626,8 +626,6 @@ const SHIFTED = new Float64Array(2);
 const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
-// the tensors an OverflowNarrowing heaps at once (OverflowNarrowing.narrow), grown to the largest count asked
-let FILL = new Int32Array(0);
 // HorizonPoint.sweep's products over the tensors it keeps, Π(1 − low) and Π(1 − high), for OverflowNarrowing.update,
 // and 1 where one of them is not integrated
 const SWEPT = new Float64Array(3);
@@ -1115,11 +1113,11 @@ class OverflowNarrowing implements OverflowBounds {
   private readonly state: Uint8Array;
   /** true once the bounds are set (the tensors a smaller scale may take its bounds from) */
   started = false;
-  // the tensors whose p_i can still move the product (upper bound above 2^−54), the widest bounds on top: by
-  // open = log(1 − low) − log(1 − high), what each leaves open of the product (keyed by 1 − e^{−open}, the same order)
-  // (the heap made when first filled: often the sweep's bounds decide, and it never is)
-  private heap: IndexHeap | undefined;
-  private readonly open: Float64Array;
+  // the tensors whose p_i can still move the product (upper bound above 2^−54), the widest bounds first to within a
+  // quarter binade: by open = log(1 − low) − log(1 − high), what each leaves open of the product (keyed by 1 − e^{−open},
+  // the same order; any order narrows to the same bounds, this one to them in fewer steps) (the queue made when first
+  // filled: often the sweep's bounds decide, and it never is)
+  private heap: BucketQueue | undefined;
   private batch = 1;
   private largest = -1;
   // true from the first narrowing until the next has swept every tensor's shifted-tail bounds
@@ -1151,13 +1149,12 @@ class OverflowNarrowing implements OverflowBounds {
   ) {
     const n = point.n;
     this.levelLog2 = Math.log2(level);
-    // the bounds, the heap's keys, the live list and the states in one buffer (one allocation per scale and point)
-    const buffer = new ArrayBuffer(28 * n + n);
+    // the bounds, the live list and the states in one buffer (one allocation per scale and point)
+    const buffer = new ArrayBuffer(20 * n + n);
     this.lows = new Float64Array(buffer, 0, n);
     this.highs = new Float64Array(buffer, 8 * n, n);
-    this.open = new Float64Array(buffer, 16 * n, n);
-    this.live = new Int32Array(buffer, 24 * n, n);
-    this.state = new Uint8Array(buffer, 28 * n, n);
+    this.live = new Int32Array(buffer, 16 * n, n);
+    this.state = new Uint8Array(buffer, 20 * n, n);
   }
 
   // the trees from the bounds (in one buffer), when the heap is first filled
@@ -1197,12 +1194,11 @@ class OverflowNarrowing implements OverflowBounds {
     }
   }
 
-  // into the heap, keyed by what its bounds leave open: 1 − (1 − high)/(1 − low) = 1 − e^{−open}, in the order of open
-  // itself without two logarithms
+  // into the queue, keyed by what its bounds leave open: 1 − (1 − high)/(1 − low) = 1 − e^{−open}, in the order of open
+  // itself without two logarithms (it never rises: the bounds only narrow)
   private push(i: number): void {
     const low = this.lows[i]!;
-    this.open[i] = (this.highs[i]! - low) / (1 - low);
-    this.heap!.push(i);
+    this.heap!.push(i, (this.highs[i]! - low) / (1 - low));
   }
 
   /** whether p_i is known exactly */
@@ -1292,26 +1288,16 @@ class OverflowNarrowing implements OverflowBounds {
       if (this.heapPending) {
         this.heapPending = false;
         this.buildProducts();
-        const heap = (this.heap = new IndexHeap(this.open));
-        // every tensor not integrated, keyed, then heaped at once (IndexHeap.fill: the same pops as pushes one by one,
-        // the order being strict; a key that is not a number would not be, and takes the pushes)
+        const heap = (this.heap = new BucketQueue(this.point.n));
+        // every tensor not integrated
         const live = this.live;
         const lows = this.lows;
-        const open = this.open;
-        const waiting = (FILL.length >= this.liveCount ? FILL : (FILL = new Int32Array(this.point.n)));
-        let count = 0;
-        let ordered = true;
         for (let k = 0; k < this.liveCount; k++) {
           const i = live[k]!;
           if (this.state[i] === 2) continue;
           const low = lows[i]!;
-          const key = (highs[i]! - low) / (1 - low);
-          open[i] = key;
-          if (!(key === key)) ordered = false;
-          waiting[count++] = i;
+          heap.push(i, (highs[i]! - low) / (1 - low));
         }
-        if (ordered) heap.fill(waiting, count);
-        else for (let k = 0; k < count; k++) heap.push(waiting[k]!);
       }
       // a batch of work: an upper bound costs about a quarter of an integral, the moment bounds with the remainder at
       // its peak a tenth
