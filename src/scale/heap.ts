@@ -102,6 +102,12 @@ export class BucketQueue {
   get size(): number {
     return this.count;
   }
+  /** empty the queue, to be filled again */
+  clear(): void {
+    this.heads.fill(-1);
+    this.top = BUCKETS;
+    this.count = 0;
+  }
   /** add index i (in [0, n), not in the queue already) with its key */
   push(i: number, key: number): void {
     const b = bucketOf(key);
