@@ -378,7 +378,8 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
 
   // Bounds on one profile's any-above probability at t into PAIR (low NaN when there is none), side 0 the start
   // profile, 1 the end (its levels made): where the law has moment bounds (src/scale/overflow-enclosure.ts), first the
-  // shifted tails (two normal tails), which settle a tensor far from t alone; else, at a spread of a binade or more, the
+  // shifted tails (two normal tails, read off their fixed grid: shiftBoundsTabled, a few percent looser than evaluated
+  // and far cheaper), which settle a tensor far from t alone; else, at a spread of a binade or more, the
   // moment bounds (a few normal tails more, far tighter, both ways). Otherwise the segment upper bound (a handful of
   // evaluations far in the tail, where it falls fast; at a narrow spread it beats the moment bounds, whose remainder
   // grows as the spread's inverse cube), and where it leaves more than SEGMENT_ENOUGH the moment bounds where the law
@@ -396,7 +397,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const spread = table.spread[j]!;
     if (applies) {
       const levels = table.levels;
-      shiftBounds(x, spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, into, 0);
+      shiftBoundsTabled(x, spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, into, 0);
       if (!(into[1]! > SEGMENT_ENOUGH)) return;
       if (spread >= 1 && enclosureWith(table.momentsBelow(j, profile), table.momentsAbove(j), spread, x, ENCLOSED, 0)) {
         if (ENCLOSED[0]! > into[0]!) into[0] = ENCLOSED[0]!;
