@@ -949,7 +949,8 @@ class HorizonPoint {
       if (!integrated) waiting = 1;
       noneHigh *= 1 - lows[i]!;
       noneLow *= 1 - high;
-      if (overflowLow(noneHigh, widen) >= 1 && k + 1 < count) {
+      // (1 − y rounds to 1 only for y ≤ 2^−54: above 2^−50 the product cannot make overflowLow 1, one comparison)
+      if (noneHigh <= 2 ** -50 && overflowLow(noneHigh, widen) >= 1 && k + 1 < count) {
         live.copyWithin(kept, k + 1, count);
         into[0] = noneHigh;
         into[1] = 0;
