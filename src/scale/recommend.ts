@@ -266,6 +266,25 @@ class ShiftLevelTable {
     this.nextCount = (c + 1) % LEVEL_COUNTS;
   }
 
+  // per tensor the least of its profiles' energyBelowWithinLog2 at `withinTolerance` (NaN until asked): the threshold
+  // does not depend on the format, so the curves of every format the answer searches read one number
+  private within: Float64Array | undefined;
+  private withinTolerance = NaN;
+  withinLog2(i: number, parts: GradientProfiles, tolerance: number): number {
+    let within = this.within;
+    if (within === undefined || tolerance !== this.withinTolerance) {
+      within = this.within ??= new Float64Array(this.made.length);
+      within.fill(NaN);
+      this.withinTolerance = tolerance;
+    }
+    let log2T = within[i]!;
+    if (log2T === log2T) return log2T;
+    log2T = energyBelowWithinLog2(parts.start, tolerance);
+    if (!parts.same) log2T = Math.min(log2T, energyBelowWithinLog2(parts.end, tolerance));
+    within[i] = log2T;
+    return log2T;
+  }
+
   private numbers(j: number, profile: MagnitudeProfile): void {
     this.rmsLog2[j] = Math.log2(profile.rms);
     this.spread[j] = profile.log2Spread;
@@ -578,9 +597,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // bounds.ts energyBelowWithinLog2: a few operations per profile, once per search), ∞ where they do not take the closed
   // form; the threshold flushBound·2^−k is exact, so log2 of it is log2 flushBound − k
   flushedEnergyWithinFrom(tolerance: number): number {
-    const parts = this.parts;
-    let log2T = energyBelowWithinLog2(parts.start, tolerance);
-    if (!parts.same) log2T = Math.min(log2T, energyBelowWithinLog2(parts.end, tolerance));
+    const log2T = this.levels.withinLog2(this.index, this.parts, tolerance);
     if (log2T === -Infinity) return Infinity;
     // (log2 of the format's flush bound taken once for every tensor of the format, the same double)
     const bound = this.limits.flushBound;
