@@ -59,7 +59,10 @@ export interface LevelMoments {
 // mean (Gumbel's, from memory) and then falls as n·erfc(2^v/√2); its lower tail is double-exponential
 const SHELL_EDGES = [-8, -4, -2, -1, 0, 1, 2, 3, 4, 5, 6, 8, 10, 13, 17, 22, 28, 36, 46];
 
+// levelMoments' memo: by grid index k below GRID_INDICES in an array (a count of up to e^64 elements), else by k
 const MOMENTS = new Map<number, LevelMoments>();
+const MOMENTS_BY_INDEX: (LevelMoments | undefined)[] = [];
+const GRID_INDICES = 64 * PER_LN;
 
 // the density of V at v: n·(1 − P)^{n−1}·(−dP/dv), P = erfc(a/√2), a = 2^v, −dP/dv = √(2/π)·a·ln 2·e^{−a²/2}
 function levelDensity(v: number, n: number): number {
@@ -100,7 +103,8 @@ export function zeroBelow(from: number, step: number, count: number, n: number):
 
 /** The moments of V for the grid count e^{k/PER_LN}, computed on first use (exported for tests). */
 export function levelMoments(k: number): LevelMoments {
-  let m = MOMENTS.get(k);
+  const indexed = k >= 0 && k < GRID_INDICES;
+  let m = indexed ? MOMENTS_BY_INDEX[k] : MOMENTS.get(k);
   if (m !== undefined) return m;
   const n = Math.exp(k / PER_LN);
   const centre = Math.log2(Math.sqrt(2 * Math.log(n)));
@@ -154,7 +158,11 @@ export function levelMoments(k: number): LevelMoments {
   let fourth = 0;
   for (let j = 0; j < fourths.length; j++) fourth += fourths[j] as number;
   m = { mean, variance, third, edges, fourths, fourth };
-  MOMENTS.set(k, m);
+  if (indexed) {
+    // (filled up to k first: the array stays packed, its reads plain element loads)
+    for (let j = MOMENTS_BY_INDEX.length; j < k; j++) MOMENTS_BY_INDEX.push(undefined);
+    MOMENTS_BY_INDEX[k] = m;
+  } else MOMENTS.set(k, m);
   return m;
 }
 
@@ -348,10 +356,12 @@ interface ShiftLevels {
 }
 
 const SHIFT_LEVELS = new Map<number, ShiftLevels>();
+const SHIFT_LEVELS_BY_INDEX: (ShiftLevels | undefined)[] = [];
 
-// The levels for the grid count n = e^{k/PER_LN}, computed on first use
+// The levels for the grid count n = e^{k/PER_LN}, computed on first use (kept as levelMoments keeps its moments)
 function gridShiftLevels(k: number): ShiftLevels {
-  let levels = SHIFT_LEVELS.get(k);
+  const indexed = k >= 0 && k < GRID_INDICES;
+  let levels = indexed ? SHIFT_LEVELS_BY_INDEX[k] : SHIFT_LEVELS.get(k);
   if (levels !== undefined) return levels;
   const lnN = k / PER_LN;
   const n = Math.exp(lnN);
@@ -365,7 +375,10 @@ function gridShiftLevels(k: number): ShiftLevels {
   // P(V ≥ c_lo) ≥ 1 − exp(−n·e), e from the fast erfc (relative error below 1.2e-7, src/risk/_math.ts) taken low
   const lowMass = -Math.expm1(-n * erfc(y) * (1 - 1e-6));
   levels = { high, low: Math.log2(y * Math.SQRT2), lowMass };
-  SHIFT_LEVELS.set(k, levels);
+  if (indexed) {
+    for (let j = SHIFT_LEVELS_BY_INDEX.length; j < k; j++) SHIFT_LEVELS_BY_INDEX.push(undefined);
+    SHIFT_LEVELS_BY_INDEX[k] = levels;
+  } else SHIFT_LEVELS.set(k, levels);
   return levels;
 }
 
