@@ -1070,6 +1070,15 @@ class WindowSearch {
         if (seed < 0 || (highs[i] as number) > (highs[seed] as number)) seed = i;
       }
       if (seed >= 0 && !((highs[seed] as number) >= floor)) seed = -1;
+    } else {
+      // so for the flushed shares: the tensor whose bound found above is highest first (the closed form's upper bound
+      // is within a nearly constant factor of the share across a stack of alike layers, 1.27 on the 1,000-layer spec at
+      // growth 1, so its largest bound is most often the largest share, and every tensor bounded below that share is
+      // then passed without its integral: of 290 integrals there, 89 were of shares met before the largest)
+      for (let i = 0; i < n; i++) {
+        if (active[i] === 0 || !((highs[i] as number) > floor)) continue;
+        if (seed < 0 || (highs[i] as number) > (highs[seed] as number)) seed = i;
+      }
     }
     for (let r = seed < 0 ? 0 : -1; r < n; r++) {
       const i = r < 0 ? seed : (order[r] as number);
