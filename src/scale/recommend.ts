@@ -840,36 +840,36 @@ class ShiftEnds {
   made(): NonNullable<ShiftEnds["made_"]> {
     if (this.made_ !== undefined) return this.made_;
     const n = this.gradients.length;
+    const table = this.levels;
+    // log2 of the rms, the spread and the bound (+∞ without one) are the level table's numbers of the profile, laid out
+    // alike (2i start, 2i + 1 end) and made with its levels: read there, most of them made by the answer's searches
     const m = {
       rms: new Float64Array(2 * n),
-      rmsLog2: new Float64Array(2 * n),
-      spread: new Float64Array(2 * n),
+      rmsLog2: table.rmsLog2,
+      spread: table.spread,
       count: new Float64Array(2 * n),
       ok: new Uint8Array(2 * n),
-      levels: this.levels.levels,
+      levels: table.levels,
       bound: new Float64Array(2 * n),
-      rawBound: new Float64Array(2 * n),
+      rawBound: table.bound,
       bothRms: new Uint8Array(n),
       gaussian: new Uint8Array(n),
     };
     for (let i = 0; i < n; i++) {
       const g = this.gradients[i]!;
       m.bothRms[i] = g.start.rms > 0 && g.end.rms > 0 ? 1 : 0;
+      // the table's levels and numbers of both profiles, the levels of end j at 6i + 3·side = 3j
+      table.at(i, g.start, g.end);
       for (let side = 0; side < 2; side++) {
         const j = 2 * i + side;
         const law = side === 0 ? g.start : g.end;
         m.rms[j] = law.rms;
-        m.rmsLog2[j] = Math.log2(law.rms);
-        m.spread[j] = law.log2Spread;
         const count = law.elements * (1 - law.zeroFraction);
         m.count[j] = count;
         const enclosed = enclosedLaw(law.shape, count);
         if (side === 0) m.gaussian[i] = enclosed ? 1 : 0;
         if (!enclosed) continue;
         m.ok[j] = 1;
-        // the table's levels of this count, at 6i + 3·side = 3j
-        this.levels.at(i, g.start, g.end);
-        m.rawBound[j] = law.bound !== undefined && law.bound > 0 ? law.bound : Infinity;
         m.bound[j] = Math.log2(m.rawBound[j]!) - 1e-9;
       }
     }
