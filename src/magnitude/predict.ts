@@ -58,6 +58,8 @@ interface LedgerSource {
 interface PhaseResult {
   tensors: PredictedTensor[];
   hazards: HazardSite[];
+  /** which weight gradient each weight made (check's prediction only: see {@link WeightPairing}) */
+  pairing: WeightPairing | undefined;
   /** the last weight profiles made, which the end pass reuses where its weights are the start's (check's prediction only) */
   weights: WeightProfiles | undefined;
   /** the start pass's forward, which the end pass takes as its own where the two are the same (see {@link SameForward}) */
@@ -112,6 +114,18 @@ interface WeightProfileSlot {
 }
 type WeightProfiles = (WeightProfileSlot | undefined)[];
 const WEIGHT_PROFILE_SLOTS = 4;
+
+/**
+ * Check's own prediction, start pass: each weight tensor's index in emission order, the index of the last weight gradient
+ * made of that weight (−1 for none), and each layer's first weight's place in those lists. The optimizer check pairs every
+ * weight with its gradient (src/scale/optimizer.ts weightPairs, by layer name and id suffix); the walk that made both
+ * knows the pairs, and {@link knownWeightPairs} gives them without the search.
+ */
+interface WeightPairing {
+  weights: number[];
+  gradients: number[];
+  first: number[];
+}
 
 const SLOT: Record<TensorRole, PlanSlot> = {
   activation: "activations",
@@ -203,6 +217,8 @@ class Phase {
   readonly ledger: boolean;
   /** see {@link WeightProfiles}: the start pass's, carried on into the end pass; none where every tensor keeps its own */
   readonly weightProfiles: WeightProfiles | undefined;
+  /** see {@link WeightPairing}: the start pass of check's own prediction only */
+  readonly pairing: WeightPairing | undefined;
 
   constructor(
     readonly graph: Graph,
@@ -217,6 +233,7 @@ class Phase {
   ) {
     this.tensors = startTensors ?? [];
     this.weightProfiles = weightProfiles ?? (source !== null && !source.own ? [] : undefined);
+    this.pairing = phase === "start" && build && source !== null && !source.own ? { weights: [], gradients: [], first: [] } : undefined;
     this.hazards = startHazards ?? [];
     // a pass with a source leaves the ledger to it; a pass without one (the source's own) links the nodes
     this.ledger = build && source === null;
@@ -404,7 +421,15 @@ class Phase {
 
   weightRecords(layer: GraphLayer, prefix: string): void {
     const weights = layer.weights;
-    for (let i = 0; i < weights.length; i++) this.weightRecord(layer, prefix, weights[i] as GraphWeight, i);
+    const pairing = this.pairing;
+    if (pairing !== undefined) pairing.first[layer.index] = pairing.weights.length;
+    for (let i = 0; i < weights.length; i++) {
+      this.weightRecord(layer, prefix, weights[i] as GraphWeight, i);
+      if (pairing !== undefined) {
+        pairing.weights.push(this.tensors.length - 1);
+        pairing.gradients.push(-1);
+      }
+    }
   }
 
   private weightRecord(layer: GraphLayer, prefix: string, w: GraphWeight, place: number): void {
@@ -646,6 +671,13 @@ class Phase {
       if (this.ledger) ledger = this.weightGradientNode(layer, wg, node, outputQ, A * W > 1 ? finalQ : undefined);
     }
     this.emit(id, layer.name, layer.index, layer.family, "weight-gradient", "gradients", weight.shape, profile, ledger);
+    const pairing = this.pairing;
+    if (pairing !== undefined) {
+      // the weight's place in its layer (a layer has a few), after the layer's first in the weight list
+      const first = pairing.first[layer.index];
+      const place = layer.weights.indexOf(weight);
+      if (first !== undefined && place >= 0) pairing.gradients[first + place] = this.tensors.length - 1;
+    }
     if (A * W > 1) this.gradientSumHazard(layer, wg, weight, summedQ, A * W, id);
   }
 
@@ -986,7 +1018,7 @@ function runPhase(
   }
   p.backward(graph.layers, seed.gradient, seedNode, true, true);
   p.finish();
-  return { tensors: p.tensors, hazards: p.hazards, weights: p.weightProfiles, forward: same };
+  return { tensors: p.tensors, hazards: p.hazards, pairing: p.pairing, weights: p.weightProfiles, forward: same };
 }
 
 function assumptions(spec: NetworkSpec, graph: Graph): string[] {
@@ -1198,7 +1230,34 @@ function predicted(graph: Graph, spec: NetworkSpec, options: PredictOptions, own
   // both passes visit the same operations in the same order: the end pass completes the start pass's tensors and sites
   runPhase(graph, spec, "end", false, lossScale, start);
   const tensors: TensorPrediction[] = start.tensors;
+  if (start.pairing !== undefined) PAIRINGS.set(tensors, { length: tensors.length, pairing: start.pairing });
   return { specName: spec.name, tensors, hazards: start.hazards, assumptions: assumptions(spec, graph) };
+}
+
+/** The weight pairings of check's own predictions, by their tensor list (see {@link knownWeightPairs}). */
+const PAIRINGS = new WeakMap<readonly TensorPrediction[], { length: number; pairing: WeightPairing }>();
+
+/**
+ * Each weight of {@link predictForCheck}'s tensors with its weight gradient, in the tensors' order: what
+ * src/scale/optimizer.ts weightPairs finds by layer name and id suffix, taken from the walk that made them (the weight
+ * gradient last made of each weight, as that search takes the newest with the weight's suffix). Undefined for any other
+ * list (another prediction's, a copy, a list whose length changed) and where a layer's name holds a colon, which the
+ * search would read as the start of the id's suffix: the search then answers. test/magnitude/weight-pairs.test.ts holds
+ * the two equal on random networks.
+ */
+export function knownWeightPairs(tensors: readonly TensorPrediction[]): { weight: TensorPrediction; gradient: TensorPrediction }[] | undefined {
+  const known = PAIRINGS.get(tensors);
+  if (known === undefined || known.length !== tensors.length) return undefined;
+  const { weights, gradients } = known.pairing;
+  const pairs: { weight: TensorPrediction; gradient: TensorPrediction }[] = [];
+  for (let i = 0; i < weights.length; i++) {
+    const g = gradients[i] as number;
+    if (g < 0) continue;
+    const weight = tensors[weights[i] as number] as TensorPrediction;
+    if (weight.layer.includes(":")) return undefined;
+    pairs.push({ weight, gradient: tensors[g] as TensorPrediction });
+  }
+  return pairs;
 }
 
 /** Where the loss value's rule comes from: the loss's definition (the seed's source is that of its gradient). */

@@ -25,6 +25,7 @@ import type { FormatName } from "../formats/names.js";
 import type { OptimizerSpec, PrecisionPlan } from "../spec/types.js";
 import { SwampingSums, sameLaw } from "./swamping.js";
 import { scaledIn, workingProfile } from "../risk/hazards.js";
+import { knownWeightPairs } from "../magnitude/predict.js";
 
 export { swampedShare } from "./swamping.js";
 
@@ -331,7 +332,8 @@ export function checkOptimizer(
   // for every weight
   const decayLost =
     optimizer.kind === "adamw" && optimizer.weightDecay > 0 ? decoupledDecayLost(decayRate(optimizer).lr * optimizer.weightDecay, updateFormat) : null;
-  const pairs = weightPairs(prediction);
+  // check's own prediction knows its pairs (the same list: src/magnitude/predict.ts knownWeightPairs)
+  const pairs = knownWeightPairs(prediction.tensors) ?? weightPairs(prediction);
   // the states and the update see the gradients after clipping, whatever the optimizer (src/risk/second-moments.ts)
   const weightGradients = weightGradientsOf(prediction);
   const clip = gradientClips(optimizer.clipNorm, weightGradients);
