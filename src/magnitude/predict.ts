@@ -1240,8 +1240,10 @@ const PAIRINGS = new WeakMap<readonly TensorPrediction[], { length: number; pair
 /**
  * Each weight of {@link predictForCheck}'s tensors with its weight gradient, in the tensors' order: what
  * src/scale/optimizer.ts weightPairs finds by layer name and id suffix, taken from the walk that made them (the weight
- * gradient last made of each weight, as that search takes the newest with the weight's suffix). Undefined for any other
- * list (another prediction's, a copy, a list whose length changed) and where a layer's name holds a colon, which the
+ * gradient last made of each weight, as that search takes the newest with the weight's suffix). For check's own
+ * prediction, which nothing edits (as {@link WeightProfiles}): a tensor put in place of another in the list would keep
+ * its old pair. Undefined for any other list (another prediction's, a copy, a list whose length changed, as measured
+ * statistics make: src/measure/calibrate.ts) and where a layer's name holds a colon, which the
  * search would read as the start of the id's suffix: the search then answers. test/magnitude/weight-pairs.test.ts holds
  * the two equal on random networks.
  */
