@@ -39,7 +39,8 @@ import { countedFindings, decidedFindings, FormatDecision } from "./decide.js";
 import { FOUND, isGradientRole, NO_FINDINGS } from "./tensor-finding.js";
 import { CheckedTensor } from "./tensor-check.js";
 import type { Finding, HazardCheck, HazardEvaluation, RangeLimits, RiskThresholds, Verdict } from "./types.js";
-import { judge, worseVerdict } from "./verdict.js";
+import { judgeFindings } from "./judgement.js";
+import { worseVerdict } from "./verdict.js";
 import { plainNumber, scaleWords } from "./words.js";
 
 /** Options of `check` and {@link judgePrediction}. */
@@ -1020,6 +1021,8 @@ function judgeFormat(
   // the tensors' findings and count, gathered by judgeTensors
   const findings = setting.findings;
   const tensorsJudged = setting.tensorsJudged;
+  // gathered tensor by tensor (gather), each tensor's findings together, tensor ids unique: counted run by run
+  const runs = findings.length;
   for (let i = 0; i < hazards.length; i++) {
     const hazardFindings = (hazards[i] as HazardCheck).findings;
     for (let j = 0; j < hazardFindings.length; j++) {
@@ -1027,7 +1030,7 @@ function judgeFormat(
       if (finding.format === format) findings.push(finding);
     }
   }
-  const judgement = judge(findings);
+  const judgement = judgeFindings(findings, runs);
   const holds: PlanEntry[] = [];
   for (let i = 0; i < PLAN_ENTRIES.length; i++) {
     const entry = PLAN_ENTRIES[i] as PlanEntry;

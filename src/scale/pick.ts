@@ -12,7 +12,6 @@ import {
   isConditionalFinding,
   isScaledSite,
   judgeScaled,
-  LOSS_SCALED_ROLES,
   scaledSubjects,
   type CheckOptions,
   type CheckResult,
@@ -60,11 +59,15 @@ const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow
  */
 export function scaledFindings(result: CheckResult, format: FormatName, subjects?: { tensors: Set<string>; sites: Set<string> }): ScaledFindings {
   const counted = none();
-  for (const t of result.tensors) {
-    if (!LOSS_SCALED_ROLES.includes(t.role)) continue;
+  const tensors = result.tensors;
+  // indexed, and LOSS_SCALED_ROLES' two roles by comparison, as src/risk/tensor-finding.ts isGradientRole takes them: a
+  // check's thousands of tensors each
+  for (let i = 0; i < tensors.length; i++) {
+    const t = tensors[i] as CheckResult["tensors"][number];
+    if (t.role !== "activation-gradient" && t.role !== "weight-gradient") continue;
     // a format holds a tensor once (its risks list each format once)
     const findings = findingsOfTensor(t, format);
-    for (const f of findings) add(counted, f, false);
+    for (let k = 0; k < findings.length; k++) add(counted, findings[k] as Finding, false);
     if (findings.length > 0) subjects?.tensors.add(t.id);
   }
   const scale = scaleOf(result, format);
