@@ -9,6 +9,7 @@ import { hashWords, normalCdf, LN2 } from "./_math.js";
 import { erf, normalLogSf } from "../numeric/normal.js";
 import { elementLaw, isConstantLike, isEmpty, lawParameter, mixtureOf, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
+import { expAbove } from "./settle.js";
 import type { RangeLimits } from "./types.js";
 
 /**
@@ -134,7 +135,8 @@ export function gaussianNoiseWithin(
   const scale = (delta * delta) / (12 * rms * rms);
   const k = (GAUSSIAN_DENSITY * h) / rms;
   if (!(m > 0)) return scale * Math.min(1, k) <= target;
-  if (scale * k * Math.exp(4.5 * m * m) <= target) return true;
+  // (the exponential by its bound first, src/risk/settle.ts expAbove: where that holds, so does the exponential's)
+  if (scale * k * expAbove(4.5 * m * m) <= target || scale * k * Math.exp(4.5 * m * m) <= target) return true;
   const logK = Math.log(k);
   const crossing = logK / m;
   const capped = Math.exp(2 * m * m + normalLogSf(-(crossing + 2 * m)));
