@@ -246,17 +246,11 @@ function headroomDecided(side: Side, d: FormatDecision): boolean {
 }
 
 // The overflow probability of a side: −1 when it is at most half the lower threshold (not worked out), else its value
-// as settledRisk gives it (the same call, or its answer where surelySettledOne shows it). surelySettledOne is asked first:
-// where it holds, anyAboveWithin cannot for a threshold under 1 (t/rms ≤ 0.15 puts its u under 0.15, and at least 64
-// elements times e^{−u²/2} ≥ 0.98 are far past a target under 1/2; its quick test's u², under 0.03, against one past
-// 70), so the order gives the same answer, and the sides of a growth-1.1 check that surely overflow (1,430 of 6,000)
-// skip the bound's exponentials. (Past 1 the overflow finding cannot come, and the number a risk reports is 1 either
-// way: −1 has it worked out when read, to the same settled 1.)
+// as settledRisk gives it (the same call, or its answer where surelySettledOne shows it)
 function overflowDecided(side: Side, d: FormatDecision): number {
-  if (side.count !== 0 && surelySettledOne(side, d.limits.overflowLevel)) return 1;
   if (anyAboveWithin(side, d.overflowAsk)) return -1;
   if (side.count === 0) return 0;
-  return overflowRiskOf(side.law(), d.limits);
+  return surelySettledOne(side, d.limits.overflowLevel) ? 1 : overflowRiskOf(side.law(), d.limits);
 }
 
 // Whether settle.ts's settledAnyAbove settles the probability that some of the side's nonzero elements reach t as 1, shown
