@@ -128,8 +128,8 @@ export class BucketQueue {
     return i;
   }
 }
-// one first for keys that are not numbers (and any above 1), four per binade from 1 down to 2^−62 (the binades 2^0
-// … 2^−62 give buckets 1 … 252), one last for keys at or below 2^−62
+// one first for keys that are not numbers (and any above 1), four per binade from 1 down to 2^−62 (the key 1 takes
+// bucket 4, the binades 2^−1 … 2^−62 buckets 5 … 252; 1 … 3 stay empty), one last for keys at or below 2^−62
 const BUCKETS = 254;
 function bucketOf(key: number): number {
   if (!(key <= 1)) return 0;
