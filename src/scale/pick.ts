@@ -20,6 +20,7 @@ import {
   type ScaledSubjects,
 } from "../risk/index.js";
 import type { NetworkSpec } from "../spec/types.js";
+import { isGradientRole } from "../risk/tensor-finding.js";
 import type { ScaleWindow } from "./window.js";
 
 /** Findings that move with the loss scale, in one format, counted by severity. */
@@ -60,11 +61,11 @@ const OVERFLOW_KINDS: ReadonlySet<FindingKind> = new Set<FindingKind>(["overflow
 export function scaledFindings(result: CheckResult, format: FormatName, subjects?: { tensors: Set<string>; sites: Set<string> }): ScaledFindings {
   const counted = none();
   const tensors = result.tensors;
-  // indexed, and LOSS_SCALED_ROLES' two roles by comparison, as src/risk/tensor-finding.ts isGradientRole takes them: a
-  // check's thousands of tensors each
+  // indexed, and LOSS_SCALED_ROLES' two roles by comparison (isGradientRole), not `includes`: a check's thousands of
+  // tensors each
   for (let i = 0; i < tensors.length; i++) {
     const t = tensors[i] as CheckResult["tensors"][number];
-    if (t.role !== "activation-gradient" && t.role !== "weight-gradient") continue;
+    if (!isGradientRole(t.role)) continue;
     // a format holds a tensor once (its risks list each format once)
     const findings = findingsOfTensor(t, format);
     for (let k = 0; k < findings.length; k++) add(counted, findings[k] as Finding, false);
