@@ -1136,17 +1136,17 @@ class OverflowNarrowing implements OverflowBounds {
   // quarter binade: by open = log(1 − low) − log(1 − high), what each leaves open of the product (keyed by 1 − e^{−open},
   // the same order; any order narrows to the same bounds, this one to them in fewer steps) (the queue made when first
   // filled: often the sweep's bounds decide, and it never is)
-  private heap: BucketQueue | undefined;
+  private queue: BucketQueue | undefined;
   private batch = 1;
   private largest = -1;
   // true from the first narrowing until the next has swept every tensor's shifted-tail bounds
   private sweepPending = false;
-  // true from the sweep until the next narrowing fills the heap (often the sweep's bounds decide, and it never is)
-  private heapPending = false;
+  // true from the sweep until the next narrowing fills the queue (often the sweep's bounds decide, and it never is)
+  private queuePending = false;
   // log2 of the level
   private readonly levelLog2: number;
   // the products Π(1 − lows[i]) and Π(1 − highs[i]) in binary trees (leaf i at size + i, spare leaves 1, node j the
-  // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product. Made when the heap is
+  // product of nodes 2j and 2j + 1): a changed bound updates its path instead of every product. Made when the queue is
   // first filled; before, each narrowing sets many bounds at once and takes the products in one pass
   // (both trees in one array, node j's low-bound factor product at 2j and its high-bound one at 2j + 1: a changed tensor
   // walks one path for both)
@@ -1176,7 +1176,7 @@ class OverflowNarrowing implements OverflowBounds {
     this.state = new Uint8Array(buffer, 20 * n, n);
   }
 
-  // the trees from the bounds (in one buffer), when the heap is first filled
+  // the trees from the bounds (in one buffer), when the queue is first filled
   private buildProducts(): void {
     const n = this.point.n;
     let size = 1;
@@ -1217,7 +1217,7 @@ class OverflowNarrowing implements OverflowBounds {
   // itself without two logarithms (it never rises: the bounds only narrow)
   private push(i: number): void {
     const low = this.lows[i]!;
-    this.heap!.push(i, (this.highs[i]! - low) / (1 - low));
+    this.queue!.push(i, (this.highs[i]! - low) / (1 - low));
   }
 
   /** whether p_i is known exactly */
@@ -1301,29 +1301,26 @@ class OverflowNarrowing implements OverflowBounds {
       // (thinning the live list and taking the products update() would take over it, in the same pass)
       this.sweepPending = false;
       this.liveCount = this.point.sweep(this.levelLog2, this.lows, highs, this.state, this.live, this.liveCount, SWEPT, this.widen());
-      if (SWEPT[2] === 1) this.heapPending = true;
+      if (SWEPT[2] === 1) this.queuePending = true;
       swept = true;
     } else {
-      if (this.heapPending) {
-        this.heapPending = false;
+      if (this.queuePending) {
+        this.queuePending = false;
         this.buildProducts();
-        const heap = (this.heap = new BucketQueue(this.point.n));
+        this.queue = new BucketQueue(this.point.n);
         // every tensor not integrated
         const live = this.live;
-        const lows = this.lows;
         for (let k = 0; k < this.liveCount; k++) {
           const i = live[k]!;
-          if (this.state[i] === 2) continue;
-          const low = lows[i]!;
-          heap.push(i, (highs[i]! - low) / (1 - low));
+          if (this.state[i] !== 2) this.push(i);
         }
       }
       // a batch of work: an upper bound costs about a quarter of an integral, the moment bounds with the remainder at
       // its peak a tenth
       let work = this.batch;
-      const heap = this.heap;
-      while (heap !== undefined && work > 0 && heap.size > 0) {
-        const i = heap.pop();
+      const queue = this.queue;
+      while (queue !== undefined && work > 0 && queue.size > 0) {
+        const i = queue.pop();
         const state = this.state[i]!;
         if (state === 0 || state === 3) {
           // bounds from the moments of the largest element's level where the law allows (first with the remainder at
@@ -1357,7 +1354,7 @@ class OverflowNarrowing implements OverflowBounds {
       }
       this.batch = Math.ceil(this.batch * 1.1);
     }
-    if ((this.heap === undefined || this.heap.size === 0) && !this.sweepPending && !this.heapPending) {
+    if ((this.queue === undefined || this.queue.size === 0) && !this.sweepPending && !this.queuePending) {
       const value = this.value();
       this.low = value;
       this.high = value;
