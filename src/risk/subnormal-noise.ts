@@ -5,11 +5,10 @@
  * less than ordinary rounding in a narrower significand: the count of subnormal elements says nothing about that.
  */
 import type { MagnitudeProfile } from "../magnitude/types.js";
-import { hashWords, normalCdf, LN2 } from "./_math.js";
+import { expAbove, hashWords, normalCdf, LN2 } from "./_math.js";
 import { erf, normalLogSf } from "../numeric/normal.js";
 import { elementLaw, isConstantLike, isEmpty, lawParameter, mixtureOf, ruleOverDraws, shapeCode } from "./laws.js";
 import { fractionBelow } from "./profile.js";
-import { expAbove } from "./settle.js";
 import type { RangeLimits } from "./types.js";
 
 /**
@@ -135,7 +134,7 @@ export function gaussianNoiseWithin(
   const scale = (delta * delta) / (12 * rms * rms);
   const k = (GAUSSIAN_DENSITY * h) / rms;
   if (!(m > 0)) return scale * Math.min(1, k) <= target;
-  // (the exponential by its bound first, src/risk/settle.ts expAbove: where that holds, so does the exponential's)
+  // (the exponential by its bound first, src/risk/_math.ts expAbove: where that holds, so does the exponential's)
   if (scale * k * expAbove(4.5 * m * m) <= target || scale * k * Math.exp(4.5 * m * m) <= target) return true;
   const logK = Math.log(k);
   const crossing = logK / m;

@@ -1,12 +1,13 @@
 /**
- * The bound on the exponential that capWithin and gaussianNoiseWithin ask before Math.exp (src/risk/settle.ts expAbove):
+ * The bound on the exponential that capWithin and gaussianNoiseWithin ask before Math.exp (src/risk/_math.ts expAbove):
  * held to Math.exp itself (the exponential the bounds took before, within one unit in the last place of e^x, ECMA-262
  * leaves the accuracy to the implementation), from above and within 0.21%, and the two tests that take it to their
  * answers with Math.exp alone (the general path, written out here as they were).
  */
 import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
-import { capMean, capWithin, expAbove } from "../../src/risk/settle.js";
+import { expAbove } from "../../src/risk/_math.js";
+import { capMean, capWithin } from "../../src/risk/settle.js";
 import { gaussianNoiseWithin } from "../../src/risk/subnormal-noise.js";
 import { normalLogSf } from "../../src/numeric/normal.js";
 import { BFLOAT16_FTZ, BINARY16, E4M3_SATURATING, E5M2 } from "./limits.js";
