@@ -125,15 +125,10 @@ export function curvePartsOf<T>(
   const overflowLog2 = Math.log2(limits.overflowLevel);
   const flushLog2 = Math.log2(limits.flushBound);
   const guesses = new Map<number, { overflow: number; flush: number }>();
+  const numbers = guessNumbers(profiles);
   return profiles.map((p, i) => {
-    const { start, end } = p;
-    // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
-    // once the bound comes within a few binades of the rms (rough: only the search's starting point)
-    const rmsLog2 = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
-    const lowRmsLog2 = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
-    const spread = Math.max(start.log2Spread, end.log2Spread, 0);
-    const overflow = Math.floor(overflowLog2 - rmsLog2 - 2 - 3 * spread);
-    const flush = Math.ceil(flushLog2 - lowRmsLog2 + 4 + 3 * spread);
+    const overflow = Math.floor(overflowLog2 - (numbers[3 * i] as number) - 2 - 3 * (numbers[3 * i + 2] as number));
+    const flush = Math.ceil(flushLog2 - (numbers[3 * i + 1] as number) + 4 + 3 * (numbers[3 * i + 2] as number));
     // one object per pair of guesses, shared by the tensors that have it (a stack of alike layers has a few pairs for
     // thousands of tensors; nothing writes the guesses), keyed exactly where both are whole numbers of modest size (and
     // not −0, which a key would take for 0)
@@ -150,6 +145,26 @@ export function curvePartsOf<T>(
 // the guesses' key: overflow·2^21 + flush, exact (and one key per pair) for whole guesses under 2^20 in size
 const GUESS_KEY = 2 ** 20;
 
+// What the edge guesses take of each tensor's profiles, whatever the format, at 3i … 3i + 2: log2 of the larger rms and
+// of the smaller positive one (1 where there is none), and the wider spread (at least 0); worked out once per set of
+// profiles, which serve every format an answer searches
+function guessNumbers(profiles: readonly GradientProfiles[]): Float64Array {
+  let numbers = GUESS_NUMBERS.get(profiles);
+  if (numbers !== undefined) return numbers;
+  numbers = new Float64Array(3 * profiles.length);
+  for (let i = 0; i < profiles.length; i++) {
+    const { start, end } = profiles[i] as GradientProfiles;
+    // the largest elements sit a few rms above the rms, more for a spread scale; the flushed energy matters
+    // once the bound comes within a few binades of the rms (rough: only the search's starting point)
+    numbers[3 * i] = Math.log2(Math.max(start.rms, end.rms) > 0 ? Math.max(start.rms, end.rms) : 1);
+    numbers[3 * i + 1] = Math.log2(Math.min(start.rms || end.rms, end.rms || start.rms) || 1);
+    numbers[3 * i + 2] = Math.max(start.log2Spread, end.log2Spread, 0);
+  }
+  GUESS_NUMBERS.set(profiles, numbers);
+  return numbers;
+}
+const GUESS_NUMBERS = new WeakMap<readonly GradientProfiles[], Float64Array>();
+
 /**
  * One tensor's parts: its profiles and their extreme-draw bounds, shared (GradientProfiles), read through that object
  * rather than copied onto this one: an answer keeps one of these per tensor and format (~4,000) alive through its
@@ -164,6 +179,11 @@ export class CurveParts implements LossScaleCurveParts {
 
   get id(): string {
     return this.parts.tensor.id;
+  }
+  // the profiles the curves are made from (src/scale/window.ts ScaledTensorCurves.source): one per tensor, whose id
+  // is the parts' tensor's
+  get source(): GradientProfiles {
+    return this.parts;
   }
   get start(): MagnitudeProfile {
     return this.parts.start;

@@ -179,10 +179,9 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
   // the shifted tails' levels depend on the counts alone: one table serves every format's curves of these profiles
   const table = levelTable(shared);
   // each tensor's bounds at the exponent last asked, for this format: one typed array for all the tensors
-  // (and after them the exponent last asked of any of them and log2 of its overflow threshold: LAST_K)
-  const memo = new Float64Array(MEMO_FIELDS * shared.length + 2);
-  for (let at = 0; at < memo.length - 2; at += MEMO_FIELDS) memo.set(MEMO_START, at);
-  memo[memo.length - 2] = NaN;
+  // (and after them the exponent last asked of any of them and log2 of its overflow threshold: LAST_K); every exponent
+  // NaN, asked of none (each field is read only where its exponent is the one asked, and so written first)
+  const memo = new Float64Array(MEMO_FIELDS * shared.length + 2).fill(NaN);
   return curvePartsOf(shared, limits, (p, edgeGuessesLog2, i) => new BoundedCurves(p, edgeGuessesLog2, limits, table, i, memo));
 }
 
@@ -318,8 +317,6 @@ const FLUSH_END = 7;
 const ROUGH_K = 8;
 const ROUGH_LOW = 9;
 const MEMO_FIELDS = 10;
-// nothing asked yet
-const MEMO_START = Float64Array.of(NaN, 1, 1, NaN, NaN, NaN, 1, 1, NaN, 0);
 // roughOf's bounds [lower, upper] of the profile it last bounded (read at once by its caller), and overflowRiskRough's
 // of the tensor (typed arrays' slots: a module variable boxed each double stored, one per rough bound)
 const ROUGH_OF = new Float64Array(2);

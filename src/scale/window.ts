@@ -11,6 +11,11 @@ import { BucketQueue, IndexHeap } from "./heap.js";
 /** How one gradient tensor reacts to a loss scale 2^k. Both curves must be monotone in k. */
 export interface ScaledTensorCurves {
   id: string;
+  /**
+   * optional: what the curves are made from, one object per tensor (src/risk/curve-parts.ts: its profiles), so that two
+   * curves with one source have one id: telling curves of the same tensors apart then reads no id
+   */
+  readonly source?: object;
   /** probability that at least one element overflows in one step at scale 2^k (nondecreasing in k) */
   overflowRisk(log2Scale: number): number;
   /** share of the tensor's gradient energy flushed to zero at scale 2^k (nonincreasing in k) */
@@ -378,15 +383,22 @@ class WindowSearch {
     this.withinFrom = new Float64Array(this.n).fill(NaN);
     this.overflowGuesses = new Float64Array(this.n);
     this.guessed = new Uint8Array(this.n);
+    // each tensor's guesses read once, for the guesses and both orders' keys (priorityOrder's)
+    const flushKeys = new Float64Array(this.n);
+    let allBounded = true;
     for (let i = 0; i < this.n; i++) {
-      const guesses = (tensors[i] as ScaledTensorCurves).edgeGuessesLog2;
+      const t = tensors[i] as ScaledTensorCurves;
+      if (t.overflowRiskBounds === undefined) allBounded = false;
+      const guesses = t.edgeGuessesLog2;
       if (guesses === undefined) continue;
       this.overflowGuesses[i] = guesses.overflow;
       this.guessed[i] = 1;
+      flushKeys[i] = -guesses.flush;
     }
-    this.overflowOrder = priorityOrder(tensors, (t) => t.edgeGuessesLog2?.overflow ?? 0);
-    this.flushOrder = priorityOrder(tensors, (t) => -(t.edgeGuessesLog2?.flush ?? 0));
-    this.allBounded = tensors.every((t) => t.overflowRiskBounds !== undefined);
+    // (a tensor without guesses has keys 0, as written there: its overflow guess is kept 0 where it has none)
+    this.overflowOrder = orderByKeys(this.overflowGuesses);
+    this.flushOrder = orderByKeys(flushKeys);
+    this.allBounded = allBounded;
     this.lows = new Float64Array(this.n);
     this.highs = new Float64Array(this.n);
     this.state = new Uint8Array(this.n);
@@ -430,7 +442,14 @@ class WindowSearch {
   // whether `tensors` are this search's, in order (a later search shares the flush tables only then)
   sameTensors(tensors: readonly ScaledTensorCurves[]): boolean {
     if (tensors.length !== this.n) return false;
-    for (let i = 0; i < this.n; i++) if ((tensors[i] as ScaledTensorCurves).id !== (this.tensors[i] as ScaledTensorCurves).id) return false;
+    for (let i = 0; i < this.n; i++) {
+      const a = tensors[i] as ScaledTensorCurves;
+      const b = this.tensors[i] as ScaledTensorCurves;
+      // one source, one id (the ids are read through a tensor each, which the searches never visit otherwise)
+      const source = a.source;
+      if (source !== undefined && source === b.source) continue;
+      if (a.id !== b.id) return false;
+    }
     return true;
   }
 
@@ -1293,20 +1312,25 @@ class WindowSearch {
 
 /** Tensor indices by a key, smallest first (stable): the order in which the searches integrate (exported for tests). */
 export function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
-  const n = tensors.length;
-  const keys = new Float64Array(n);
+  const keys = new Float64Array(tensors.length);
+  for (let i = 0; i < tensors.length; i++) keys[i] = key(tensors[i] as ScaledTensorCurves);
+  return orderByKeys(keys);
+}
+
+// priorityOrder from the tensors' keys
+function orderByKeys(keys: Float64Array): number[] {
+  const n = keys.length;
   let low = Infinity;
   let high = -Infinity;
   let whole = true;
   for (let i = 0; i < n; i++) {
-    const k = key(tensors[i] as ScaledTensorCurves);
-    keys[i] = k;
+    const k = keys[i] as number;
     if (!Number.isInteger(k)) whole = false;
     if (k < low) low = k;
     if (k > high) high = k;
   }
   if (n === 0) return [];
-  if (!whole || high - low > 4 * n + 64) return Array.from(tensors.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
+  if (!whole || high - low > 4 * n + 64) return Array.from(keys.keys()).sort((a, b) => (keys[a] as number) - (keys[b] as number) || a - b);
   // whole-exponent keys over a short range: a counting sort, stable, so ties stay in index order as in the sort above
   const starts = new Int32Array(high - low + 2);
   for (let i = 0; i < n; i++) {

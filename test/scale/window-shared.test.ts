@@ -13,6 +13,7 @@ import type { MagnitudeProfile } from "../../src/magnitude/types.js";
 import { energyBelow, limitsFor } from "../../src/risk/index.js";
 import { FLUSH_GROWTH_ABSOLUTE, lossScaleWindow, lossScaleWindows, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
 import { boundedLossScaleCurves } from "../../src/scale/recommend.js";
+import { gradientProfiles } from "../../src/risk/curve-parts.js";
 import type { TensorPrediction } from "../../src/magnitude/types.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
 
@@ -241,5 +242,51 @@ describe("FlushLike", () => {
     expect(() => lossScaleWindows(first, { ...OPTIONS, flushTolerance: 1e-2 }, { windows: windowOf, shift: 1 })).toThrow(RangeError);
     expect(() => lossScaleWindows([{ ...first[0]!, id: "other" }], OPTIONS, { windows: windowOf, shift: 1 })).toThrow(RangeError);
     expect(() => lossScaleWindows(first, OPTIONS, { windows: windowOf, shift: 0.5 })).toThrow(RangeError);
+  });
+
+  it("tells the tensors by their sources where both curves have one (one source, one id), else by their ids", () => {
+    const shapes: Shape[] = Array.from({ length: 5 }, (_, i) => ({ overflowCentre: 4 + i, flushCentre: -4 + i / 3, slope: 1.5, slack: 1e-2, guess: 0 }));
+    const sources = shapes.map(() => ({}));
+    const first = curves(shapes).map((c, i) => ({ ...c, source: sources[i]! }));
+    const windowOf = lossScaleWindows(first, OPTIONS);
+    windowOf();
+    // the same sources: the same tensors, shared as by their ids
+    const second = curves(shapes, 3).map((c, i) => ({ ...c, source: sources[i]! }));
+    expect(lossScaleWindows(second, OPTIONS, { windows: windowOf, shift: 3 })()).toEqual(lossScaleWindow(second, OPTIONS));
+    // other sources, or none, with other ids: other tensors
+    const renamed = (c: ScaledTensorCurves, i: number) => ({ ...c, id: `other${i}` });
+    expect(() => lossScaleWindows(second.map(renamed).map((c) => ({ ...c, source: {} })), OPTIONS, { windows: windowOf, shift: 3 })).toThrow(RangeError);
+    expect(() => lossScaleWindows(curves(shapes, 3).map(renamed), OPTIONS, { windows: windowOf, shift: 3 })).toThrow(RangeError);
+    // other sources with the same ids: still the same tensors by their ids
+    expect(lossScaleWindows(curves(shapes, 3).map((c) => ({ ...c, source: {} })), OPTIONS, { windows: windowOf, shift: 3 })()).toEqual(lossScaleWindow(second, OPTIONS));
+  });
+
+  it("gives the answer's curves, made from one set of profiles for two formats, one source per tensor, of that tensor", () => {
+    // the remedies' bfloat16 search shares binary16's flush tables (src/scale/recommend.ts rankRemedies), both made from
+    // one set of profiles: each tensor's two curves have one source, and curves of two tensors never share one
+    const profile = (rms: number): MagnitudeProfile => ({ elements: 4096, zeroFraction: 0, shape: "gaussian", rms, log2Spread: 0.5 });
+    const tensors = [1e-3, 2e-2, 5].map(
+      (rms, i) => ({ id: `g${i}`, layer: `d${i}`, layerIndex: i, family: "dense", role: "weight-gradient", slot: "gradients", shape: [64, 64], start: profile(rms), end: profile(rms * 2), source: "predicted" }) as unknown as TensorPrediction,
+    );
+    const plan = { gradients: "binary16" } as unknown as PrecisionPlan;
+    const profiles = gradientProfiles(tensors);
+    const half = limitsFor(plan, "binary16");
+    const brain = limitsFor({ ...plan, gradients: "bfloat16" }, "bfloat16");
+    const a = boundedLossScaleCurves(tensors, half, profiles);
+    const b = boundedLossScaleCurves(tensors, brain, profiles);
+    for (let i = 0; i < tensors.length; i++) {
+      expect(a[i]!.source).toBe(profiles[i]);
+      expect(b[i]!.source).toBe(a[i]!.source);
+      expect(a[i]!.id).toBe(tensors[i]!.id);
+      expect(b[i]!.id).toBe(tensors[i]!.id);
+      for (let j = 0; j < i; j++) expect(a[j]!.source).not.toBe(a[i]!.source);
+    }
+    // so the second search shares the first's tables, and gives the window a fresh search gives
+    const windowOf = lossScaleWindows(a, OPTIONS);
+    windowOf();
+    // (the two flush bounds a whole number of binades apart, as rankRemedies' flushShift asks)
+    const shift = Math.round(Math.log2(half.flushBound / brain.flushBound));
+    expect(brain.flushBound * 2 ** shift).toBe(half.flushBound);
+    expect(lossScaleWindows(b, OPTIONS, { windows: windowOf, shift })()).toEqual(lossScaleWindow(b, OPTIONS));
   });
 });
