@@ -36,7 +36,11 @@ import type { Finding, RangeLimits, RiskThresholds, Verdict } from "./types.js";
 import { NO_FINDINGS, noFindings } from "./tensor-finding.js";
 
 // An own enumerable accessor read through `read` (shared by every object, so they keep one layout); assigning the field
-// makes it a plain data field.
+// makes it a plain data field. Setting one up is a runtime call, ~0.13–0.18 µs wherever it stands in the constructor:
+// a 1,000-layer check's 4,002 tensors spend ~1.3 ms on their two (the judgement without them, plain data no longer,
+// read 0.88–0.91×). No cheaper way to an own accessor was found (Dec 2026, Node 20): Object.defineProperties ~2×,
+// Reflect.defineProperty and a descriptor without a setter the same, one without a prototype ~1.7×, __defineGetter__
+// ~1.6×, and a literal's getters, made afresh per object, leave every object in dictionary mode (~3.5×).
 function lazyField<T extends object>(key: string, read: (target: T) => unknown): PropertyDescriptor {
   return {
     get(this: T) {
