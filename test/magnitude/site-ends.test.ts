@@ -129,6 +129,15 @@ describe("hazard sites at the end of the horizon", () => {
           const own = predict(built.graph, spec);
           const kept = predictForCheck(built.graph, spec);
           expect(JSON.stringify(kept.hazards)).toBe(JSON.stringify(own.hazards));
+          // each site's end record is its own (predict.ts newSite makes it with the site and the end pass writes into it);
+          // where the end pass takes the start's forward, a forward sum's end holds the start's very profiles, which the
+          // judgement tells by identity (src/risk/hazards.ts judgesEnd)
+          expect(new Set(kept.hazards.map((site) => site.end)).size).toBe(kept.hazards.length);
+          for (const site of kept.hazards) {
+            if (weightGrowth !== 1 || site.kind !== "accumulation" || site.gradient === true) continue;
+            expect(site.end!.input).toBe(site.input);
+            expect(site.end!.output).toBe(site.output);
+          }
           expect(JSON.stringify(kept.tensors)).toBe(JSON.stringify(own.tensors, (key, value: unknown) => (key === "ledger" ? undefined : value)));
         },
       ),
