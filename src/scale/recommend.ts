@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { BucketQueue } from "./heap.js";
-import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, type LevelMoments } from "./overflow-enclosure.js";
+import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, SHIFT_LEVELS_LENGTH, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -186,8 +186,8 @@ export function boundedLossScaleCurves(tensors: readonly TensorPrediction[], lim
 }
 
 /**
- * The shifted tails' levels (overflow-enclosure.ts shiftLevels) of each tensor's start count at 6i … 6i + 2 and its
- * end count at 6i + 3 … 6i + 5, made on first use: one typed array for all the tensors of an answer, shared by the
+ * The shifted tails' levels (overflow-enclosure.ts shiftLevels, LEVELS numbers each) of each tensor's start count at
+ * 2·LEVELS·i … and its end count at (2i + 1)·LEVELS …, made on first use: one typed array for all the tensors of an answer, shared by the
  * curves of its formats (the gradient format's and bfloat16's remedy), instead of a small one per tensor and format.
  */
 class ShiftLevelTable {
@@ -201,7 +201,7 @@ class ShiftLevelTable {
   readonly applies: Uint8Array;
   readonly bound: Float64Array;
   constructor(n: number) {
-    this.levels = new Float64Array(6 * n);
+    this.levels = new Float64Array(2 * LEVELS * n);
     this.made = new Uint8Array(n);
     this.rmsLog2 = new Float64Array(2 * n);
     this.spread = new Float64Array(2 * n);
@@ -211,10 +211,10 @@ class ShiftLevelTable {
 
   /** the offset of tensor i's levels, made now from its profiles where they are not yet */
   at(i: number, start: MagnitudeProfile, end: MagnitudeProfile): number {
-    const base = 6 * i;
+    const base = 2 * LEVELS * i;
     if (this.made[i] === 0) {
       this.levelsOf(start.elements * (1 - start.zeroFraction), base);
-      this.levelsOf(end.elements * (1 - end.zeroFraction), base + 3);
+      this.levelsOf(end.elements * (1 - end.zeroFraction), base + LEVELS);
       this.numbers(2 * i, start);
       this.numbers(2 * i + 1, end);
       this.made[i] = 1;
@@ -253,9 +253,7 @@ class ShiftLevelTable {
     for (let c = 0; c < LEVEL_COUNTS; c++) {
       if (counts[c] !== count) continue;
       const from = this.countAt[c]!;
-      levels[at] = levels[from]!;
-      levels[at + 1] = levels[from + 1]!;
-      levels[at + 2] = levels[from + 2]!;
+      for (let l = 0; l < LEVELS; l++) levels[at + l] = levels[from + l]!;
       return;
     }
     shiftLevels(count, levels, at);
@@ -293,6 +291,8 @@ class ShiftLevelTable {
 }
 // the counts ShiftLevelTable remembers the levels of
 const LEVEL_COUNTS = 8;
+// the numbers shiftLevels gives a count (ShiftLevelTable): c_hi, c_lo, lowMass, c_mid, the bound on P(V > c_mid)
+const LEVELS = SHIFT_LEVELS_LENGTH;
 // each set of gradient profiles' level table (an answer's profiles serve several formats and the dynamic simulation)
 const LEVEL_TABLES = new WeakMap<readonly GradientProfiles[], ShiftLevelTable>();
 function levelTable(profiles: readonly GradientProfiles[]): ShiftLevelTable {
@@ -333,7 +333,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     profiles: GradientProfiles,
     edgeGuessesLog2: { overflow: number; flush: number },
     limits: RangeLimits,
-    // the shifted tails' levels of the start's count at 6·index … + 2 and the end's at + 3 … + 5 (ShiftLevelTable)
+    // the shifted tails' levels of the start's count at 2·LEVELS·index … and the end's LEVELS on (ShiftLevelTable)
     private readonly levels: ShiftLevelTable,
     private readonly index: number,
     private readonly memo: Float64Array,
@@ -405,7 +405,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   private boundsOf(side: number, t: number, tLog2: number): void {
     const table = this.levels;
     const j = 2 * this.index + side;
-    const base = 6 * this.index + 3 * side;
+    const base = 2 * LEVELS * this.index + LEVELS * side;
     const profile = side === 0 ? this.parts.start : this.parts.end;
     const into = PAIR;
     const applies = table.applies[j] === 1 && t > 0 && !(t > table.bound[j]!);
@@ -482,7 +482,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
   // apply); enclosureApplies(profile, t) and its x = log2 t − log2 rms from the level table's numbers of the profile
   // (the same tests and the same doubles)
   private roughOf(side: number, t: number, tLog2: number): void {
-    const base = this.levelsAt() + 3 * side;
+    const base = this.levelsAt() + LEVELS * side;
     const table = this.levels;
     const j = 2 * this.index + side;
     if (table.applies[j] === 0 || !(t > 0) || t > table.bound[j]!) {
@@ -812,7 +812,7 @@ class ShiftEnds {
   private readonly above: (LevelMoments | undefined)[];
   constructor(
     private readonly gradients: readonly GradientProfiles[],
-    // the levels of each end's count at 3j (as ShiftLevelTable lays them out: 6i start, 6i + 3 end), shared with the
+    // the levels of each end's count at LEVELS·j (as ShiftLevelTable lays them out: j = 2i start, 2i + 1 end), shared with the
     // answer's curves, which have made many of them already
     private readonly levels: ShiftLevelTable,
   ) {
@@ -855,7 +855,7 @@ class ShiftEnds {
     for (let i = 0; i < n; i++) {
       const g = this.gradients[i]!;
       m.bothRms[i] = g.start.rms > 0 && g.end.rms > 0 ? 1 : 0;
-      // the table's levels and numbers of both profiles, the levels of end j at 6i + 3·side = 3j
+      // the table's levels and numbers of both profiles, the levels of end j at LEVELS·j
       table.at(i, g.start, g.end);
       for (let side = 0; side < 2; side++) {
         const j = 2 * i + side;
@@ -915,12 +915,25 @@ class HorizonPoint {
   }
 
   // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
-  // (bound −∞ where the law has none of these bounds; slope, up and down: shiftBoundsGridded's arguments as log2 t·slope
-  // + up and + down, the other numbers for shiftBounds where those are not numbers)
+  // (bound −∞ where the law has none of these bounds; slope, up, middle and down: shiftBoundsGridded's arguments as log2
+  // t·slope + up, + middle and + down, with middleTail; the other numbers for shiftBounds where those are not numbers)
   // (made for the tensors below `made`, in blocks as the sweeps reach them: a sweep that stops early, its overflow
   // certain, leaves the rest unmade)
   private shifts:
-    | { made: number; rmsLog2: Float64Array; spread: Float64Array; high: Float64Array; low: Float64Array; mass: Float64Array; bound: Float64Array; slope: Float64Array; up: Float64Array; down: Float64Array }
+    | {
+        made: number;
+        rmsLog2: Float64Array;
+        spread: Float64Array;
+        high: Float64Array;
+        low: Float64Array;
+        mass: Float64Array;
+        bound: Float64Array;
+        slope: Float64Array;
+        up: Float64Array;
+        down: Float64Array;
+        middle: Float64Array;
+        middleTail: Float64Array;
+      }
     | undefined;
 
   /**
@@ -951,7 +964,8 @@ class HorizonPoint {
       if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
         // the grid arguments as affine functions of log2 t (shiftBoundsGridded), else the tails themselves
         const slope = c.slope[i]!;
-        if (!shiftBoundsGridded(levelLog2 * slope + c.up[i]!, levelLog2 * slope + c.down[i]!, c.mass[i]!, SHIFTED, 0)) {
+        const at = levelLog2 * slope;
+        if (!shiftBoundsGridded(at + c.up[i]!, at + c.middle[i]!, c.middleTail[i]!, at + c.down[i]!, c.mass[i]!, SHIFTED, 0)) {
           shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
         }
         if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
@@ -991,6 +1005,8 @@ class HorizonPoint {
       slope: new Float64Array(n),
       up: new Float64Array(n),
       down: new Float64Array(n),
+      middle: new Float64Array(n),
+      middleTail: new Float64Array(n),
     };
     this.shifts = c;
     return c;
@@ -1022,19 +1038,23 @@ class HorizonPoint {
         } else rmsLog2 = a;
       }
       if (!(spread > 0) || !Number.isFinite(rmsLog2)) continue;
-      const high = ends.levels[3 * j]! + slack;
-      const low = ends.levels[3 * j + 1]! - slack;
+      const l = LEVELS * j;
+      const high = ends.levels[l]! + slack;
+      const low = ends.levels[l + 1]! - slack;
+      const middle = ends.levels[l + 3]! + slack;
       c.rmsLog2[i] = rmsLog2;
       c.spread[i] = spread;
       c.high[i] = high;
       c.low[i] = low;
-      c.mass[i] = ends.levels[3 * j + 2]!;
+      c.mass[i] = ends.levels[l + 2]!;
+      c.middleTail[i] = ends.levels[l + 4]!;
       c.bound[i] = ends.bound[j]!;
       // shiftBoundsTabled's grid arguments ((log2 t − log2 rms − level)/s − TAIL_LOW)·TAIL_STEPS as log2 t·slope + a constant
       const slope = SHIFT_GRID_STEPS / spread;
       c.slope[i] = slope;
       c.up[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
       c.down[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
+      c.middle[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + middle) * slope;
     }
     c.made = to;
   }

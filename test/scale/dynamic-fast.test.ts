@@ -9,7 +9,7 @@ import type { ElementShape, MagnitudeProfile, TensorPrediction } from "../../src
 import { energyBelow, limitsFor, probabilityAnyAbove } from "../../src/risk/index.js";
 import { normalSf } from "../../src/numeric/normal.js";
 import { simulateDynamicScale, type DynamicScaleModel } from "../../src/scale/dynamic.js";
-import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS } from "../../src/scale/overflow-enclosure.js";
+import { anyAboveEnclosure, enclosureApplies, enclosureMoments, enclosureQuick, enclosureWith, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, SHIFT_LEVELS_LENGTH } from "../../src/scale/overflow-enclosure.js";
 import { dynamicModel, profileAt } from "../../src/scale/recommend.js";
 import { DEFAULT_WINDOW_OPTIONS } from "../../src/scale/window.js";
 import type { PrecisionPlan } from "../../src/spec/types.js";
@@ -165,7 +165,7 @@ describe("shiftBounds", () => {
     // the formula of src/scale/overflow-enclosure.ts: lower = P(V ≥ c_lo)·Q((x − c_lo)/s), 0 under 1e-15, taken 1e-4
     // low; Q here the precise tail of src/numeric (Cody 1969), within the fast tail's 1.2e-7 of it
     const into = new Float64Array(2);
-    const levels = new Float64Array(3);
+    const levels = new Float64Array(SHIFT_LEVELS_LENGTH);
     let skipped = 0;
     fc.assert(
       fc.property(
@@ -196,7 +196,7 @@ describe("shiftBoundsTabled", () => {
     // with those in place of Q: within the grid step's factor of them
     const tabled = new Float64Array(2);
     const plain = new Float64Array(2);
-    const levels = new Float64Array(3);
+    const levels = new Float64Array(SHIFT_LEVELS_LENGTH);
     fc.assert(
       fc.property(
         fc.constantFrom("gaussian", "half-gaussian", "bounded"),
@@ -234,7 +234,7 @@ describe("shiftBoundsGridded", () => {
     // the simulation's sweep keeps up = log2 t·(256/s) + a constant per tensor; the bounds must still hold about
     // the integral of src/risk/profile.ts, whatever the rounding of that form
     const gridded = new Float64Array(2);
-    const levels = new Float64Array(3);
+    const levels = new Float64Array(SHIFT_LEVELS_LENGTH);
     fc.assert(
       fc.property(
         fc.constantFrom("gaussian", "half-gaussian"),
@@ -249,7 +249,8 @@ describe("shiftBoundsGridded", () => {
           const slope = SHIFT_GRID_STEPS / s;
           const up = SHIFT_GRID_ORIGIN - (rmsLog2 + levels[0]!) * slope;
           const down = SHIFT_GRID_ORIGIN - (rmsLog2 + levels[1]!) * slope;
-          expect(shiftBoundsGridded(tLog2 * slope + up, tLog2 * slope + down, levels[2]!, gridded, 0)).toBe(true);
+          const middle = SHIFT_GRID_ORIGIN - (rmsLog2 + levels[3]!) * slope;
+          expect(shiftBoundsGridded(tLog2 * slope + up, tLog2 * slope + middle, levels[4]!, tLog2 * slope + down, levels[2]!, gridded, 0)).toBe(true);
           const value = probabilityAnyAbove(p, 2 ** tLog2);
           expect(gridded[0]).toBeLessThanOrEqual(value);
           expect(gridded[1]).toBeGreaterThanOrEqual(value);
@@ -260,7 +261,7 @@ describe("shiftBoundsGridded", () => {
   });
 
   it("declines an argument that is not a number", () => {
-    expect(shiftBoundsGridded(NaN, NaN, 1, new Float64Array(2), 0)).toBe(false);
+    expect(shiftBoundsGridded(NaN, NaN, 0.01, NaN, 1, new Float64Array(2), 0)).toBe(false);
   });
 });
 
