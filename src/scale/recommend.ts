@@ -635,6 +635,19 @@ function overflowLow(noneHigh: number, widen: number): number {
 
 // the tensors whose shifted-tail constants a horizon point makes at once (HorizonPoint.makeShifts)
 const SHIFT_BLOCK = 128;
+// a tensor's shifted-tail constants at a horizon point, at these offsets of its record (HorizonPoint.shifts)
+const SHIFT_BOUND = 0;
+const SHIFT_SLOPE = 1;
+const SHIFT_UP = 2;
+const SHIFT_MIDDLE = 3;
+const SHIFT_MIDDLE_TAIL = 4;
+const SHIFT_DOWN = 5;
+const SHIFT_MASS = 6;
+const SHIFT_RMS_LOG2 = 7;
+const SHIFT_SPREAD = 8;
+const SHIFT_HIGH = 9;
+const SHIFT_LOW = 10;
+const SHIFT_FIELDS = 11;
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing
@@ -914,27 +927,14 @@ class HorizonPoint {
     return d;
   }
 
-  // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep
-  // (bound −∞ where the law has none of these bounds; slope, up, middle and down: shiftBoundsGridded's arguments as log2
-  // t·slope + up, + middle and + down, with middleTail; the other numbers for shiftBounds where those are not numbers)
+  // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep,
+  // SHIFT_FIELDS numbers each in one array (the sweep reads a tensor's together): its bound (−∞ where the law has none of
+  // these bounds), slope, up, middle and down (shiftBoundsGridded's arguments as log2 t·slope + up, + middle and + down),
+  // middleTail and mass, and the numbers shiftBounds takes where those arguments are not numbers
   // (made for the tensors below `made`, in blocks as the sweeps reach them: a sweep that stops early, its overflow
   // certain, leaves the rest unmade)
-  private shifts:
-    | {
-        made: number;
-        rmsLog2: Float64Array;
-        spread: Float64Array;
-        high: Float64Array;
-        low: Float64Array;
-        mass: Float64Array;
-        bound: Float64Array;
-        slope: Float64Array;
-        up: Float64Array;
-        down: Float64Array;
-        middle: Float64Array;
-        middleTail: Float64Array;
-      }
-    | undefined;
+  private shifts: Float64Array | undefined;
+  private shiftsMade = 0;
 
   /**
    * The shifted-tail bounds at log2 t of the tensors in `live` (the first `count`) into `lows` and `highs` where the law has them and they are tighter
@@ -950,23 +950,23 @@ class HorizonPoint {
    * one of them as not integrated.
    */
   sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number, into: Float64Array, widen: number): number {
-    const c = this.shifts ?? this.shiftConstants();
+    const c = (this.shifts ??= new Float64Array(SHIFT_FIELDS * this.n));
     let kept = 0;
     let noneHigh = 1;
     let noneLow = 1;
     let waiting = 0;
     for (let k = 0; k < count; k++) {
       const i = live[k]!;
-      if (i >= c.made) this.makeShifts(c, i);
+      if (i >= this.shiftsMade) this.makeShifts(c, i);
       const integrated = state[i] === 2;
+      const f = SHIFT_FIELDS * i;
       // an integrated tensor, or one already bounded below anything that moves a product, is left as it is (and one
       // whose law has no such bounds: its bound is −∞ here)
-      if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c.bound[i]!)) {
+      if (!(integrated || !(highs[i]! > 2 ** -54) || levelLog2 > c[f + SHIFT_BOUND]!)) {
         // the grid arguments as affine functions of log2 t (shiftBoundsGridded), else the tails themselves
-        const slope = c.slope[i]!;
-        const at = levelLog2 * slope;
-        if (!shiftBoundsGridded(at + c.up[i]!, at + c.middle[i]!, c.middleTail[i]!, at + c.down[i]!, c.mass[i]!, SHIFTED, 0)) {
-          shiftBounds(levelLog2 - c.rmsLog2[i]!, c.spread[i]!, c.high[i]!, c.low[i]!, c.mass[i]!, SHIFTED, 0);
+        const at = levelLog2 * c[f + SHIFT_SLOPE]!;
+        if (!shiftBoundsGridded(at + c[f + SHIFT_UP]!, at + c[f + SHIFT_MIDDLE]!, c[f + SHIFT_MIDDLE_TAIL]!, at + c[f + SHIFT_DOWN]!, c[f + SHIFT_MASS]!, SHIFTED, 0)) {
+          shiftBounds(levelLog2 - c[f + SHIFT_RMS_LOG2]!, c[f + SHIFT_SPREAD]!, c[f + SHIFT_HIGH]!, c[f + SHIFT_LOW]!, c[f + SHIFT_MASS]!, SHIFTED, 0);
         }
         if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
         if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
@@ -992,35 +992,18 @@ class HorizonPoint {
     return kept;
   }
 
-  private shiftConstants(): NonNullable<HorizonPoint["shifts"]> {
-    const n = this.n;
-    const c = {
-      made: 0,
-      rmsLog2: new Float64Array(n),
-      spread: new Float64Array(n),
-      high: new Float64Array(n),
-      low: new Float64Array(n),
-      mass: new Float64Array(n),
-      bound: new Float64Array(n).fill(-Infinity),
-      slope: new Float64Array(n),
-      up: new Float64Array(n),
-      down: new Float64Array(n),
-      middle: new Float64Array(n),
-      middleTail: new Float64Array(n),
-    };
-    this.shifts = c;
-    return c;
-  }
-
-  // the shifted tails' constants of the tensors from c.made to past `at` (a block of SHIFT_BLOCK, or the rest)
-  private makeShifts(c: NonNullable<HorizonPoint["shifts"]>, at: number): void {
+  // the shifted tails' constants of the tensors from `shiftsMade` to past `at` (a block of SHIFT_BLOCK, or the rest)
+  private makeShifts(c: Float64Array, at: number): void {
     const p = this.progress;
     const ends = this.ends.made();
     // the law, count and bound of the profile here: the end's at the end, else the start's (profileBetween)
     const side = p >= 1 ? 1 : 0;
-    const to = Math.min(this.n, Math.max(at + 1, c.made + SHIFT_BLOCK));
-    for (let i = c.made; i < to; i++) {
+    const from = this.shiftsMade;
+    const to = Math.min(this.n, Math.max(at + 1, from + SHIFT_BLOCK));
+    for (let i = from; i < to; i++) {
       const j = 2 * i + side;
+      const f = SHIFT_FIELDS * i;
+      c[f + SHIFT_BOUND] = -Infinity;
       if (ends.ok[j] === 0) continue;
       let rmsLog2: number;
       let spread: number;
@@ -1042,21 +1025,21 @@ class HorizonPoint {
       const high = ends.levels[l]! + slack;
       const low = ends.levels[l + 1]! - slack;
       const middle = ends.levels[l + 3]! + slack;
-      c.rmsLog2[i] = rmsLog2;
-      c.spread[i] = spread;
-      c.high[i] = high;
-      c.low[i] = low;
-      c.mass[i] = ends.levels[l + 2]!;
-      c.middleTail[i] = ends.levels[l + 4]!;
-      c.bound[i] = ends.bound[j]!;
+      c[f + SHIFT_RMS_LOG2] = rmsLog2;
+      c[f + SHIFT_SPREAD] = spread;
+      c[f + SHIFT_HIGH] = high;
+      c[f + SHIFT_LOW] = low;
+      c[f + SHIFT_MASS] = ends.levels[l + 2]!;
+      c[f + SHIFT_MIDDLE_TAIL] = ends.levels[l + 4]!;
+      c[f + SHIFT_BOUND] = ends.bound[j]!;
       // shiftBoundsTabled's grid arguments ((log2 t − log2 rms − level)/s − TAIL_LOW)·TAIL_STEPS as log2 t·slope + a constant
       const slope = SHIFT_GRID_STEPS / spread;
-      c.slope[i] = slope;
-      c.up[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
-      c.down[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
-      c.middle[i] = SHIFT_GRID_ORIGIN - (rmsLog2 + middle) * slope;
+      c[f + SHIFT_SLOPE] = slope;
+      c[f + SHIFT_UP] = SHIFT_GRID_ORIGIN - (rmsLog2 + high) * slope;
+      c[f + SHIFT_DOWN] = SHIFT_GRID_ORIGIN - (rmsLog2 + low) * slope;
+      c[f + SHIFT_MIDDLE] = SHIFT_GRID_ORIGIN - (rmsLog2 + middle) * slope;
     }
-    c.made = to;
+    this.shiftsMade = to;
   }
 
   // per tensor here: what the moment bounds take of its profile (src/scale/overflow-enclosure.ts enclosureWith), each
