@@ -9,7 +9,7 @@ import { DRAWS, energyBelowUpper, energyBelowUpperClosed, energyBelowWithinLog2,
 import { CurveParts, curvePartsOf, gradientProfiles, pow2Below, profilesOf, type GradientProfiles } from "../risk/curve-parts.js";
 import { riskProfile } from "../risk/profile.js";
 import { elementLaw, energyBelow, limitsFor, probabilityAnyAbove, storedTensors, type RangeLimits } from "../risk/index.js";
-import { INNER_DRAW_OUTSIDE, nonzeroElements } from "../risk/laws.js";
+import { INNER_DRAW_OUTSIDE } from "../risk/laws.js";
 import { exp2 } from "../risk/_math.js";
 import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
@@ -687,8 +687,9 @@ export function dynamicModel(
   const narrowings = new Map<number, [number, OverflowNarrowing][]>();
   const lead = { index: -1 };
   // per point of the horizon: for each tensor the smallest scale at which its flushing was found within the tolerance,
-  // and whether its bound at the lowest scale was taken
-  const flushing = new Map<number, { tolerated: Float64Array; anchored: Uint8Array }>();
+  // and whether its bound at the lowest scale was taken; and the tensors not known to be within it at the lowest scale
+  // (the first `open` of `rest`, in order): the simulation asks no scale below the lowest, so it visits no other
+  const flushing = new Map<number, { tolerated: Float64Array; anchored: Uint8Array; rest: Int32Array; open: number }>();
   // per tensor 1 when its flushed share at the lowest scale is within the tolerance at every point before the end, read
   // off its two ends once (flushWithinBeforeEnd): such tensors are never looked at again, nor their profiles made
   let within: Uint8Array | undefined;
@@ -713,21 +714,37 @@ export function dynamicModel(
       const n = point.n;
       let known = flushing.get(progress);
       if (known === undefined) {
-        known = { tolerated: new Float64Array(n).fill(Infinity), anchored: new Uint8Array(n) };
-        flushing.set(progress, known);
+        const tolerated = new Float64Array(n).fill(Infinity);
+        const anchored = new Uint8Array(n);
+        let open = n;
         if (progress < 1) {
-          within ??= flushWithinBeforeEnd(profiles, limits.flushBound / lowestScale, options.flushTolerance);
+          within ??= flushWithinBeforeEnd(profiles, ends, limits.flushBound / lowestScale, options.flushTolerance);
           for (let i = 0; i < n; i++) {
             if (within[i] === 1) {
-              known.tolerated[i] = lowestScale;
-              known.anchored[i] = 1;
+              tolerated[i] = lowestScale;
+              anchored[i] = 1;
+              open--;
             }
           }
         }
+        // (the list as long as it needs to be: at growth 1.1 one tensor of 2,000)
+        const rest = new Int32Array(open);
+        for (let i = 0, k = 0; k < open; i++) if (anchored[i] === 0) rest[k++] = i;
+        known = { tolerated, anchored, rest, open };
+        flushing.set(progress, known);
       }
+      // the tensors found within the tolerance at the lowest scale since leave the list (a scale below the lowest, which
+      // the simulation never asks, visits every tensor)
+      const rest = known.rest;
+      let open = 0;
+      for (let k = 0; k < known.open; k++) if (!(known.tolerated[rest[k]!]! <= lowestScale)) rest[open++] = rest[k]!;
+      known.open = open;
+      const every = !(scale >= lowestScale);
+      const visits = every ? n : open;
       const tolerance = options.flushTolerance;
       const bound = limits.flushBound / scale;
-      for (let i = 0; i < n; i++) {
+      for (let k = 0; k < visits; k++) {
+        const i = every ? k : rest[k]!;
         // the flushed share falls as the scale grows: a tensor within the tolerance at a smaller scale is within it here
         if (known.tolerated[i]! <= scale) continue;
         const draws = point.drawBounds(i);
@@ -765,22 +782,23 @@ export function dynamicModel(
  * share of 0.2 or more where it is used, src/risk/_math.ts; rounding alone in the series below that). Then the anchoring's own test
  * passes at every such point.
  */
-function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number, tolerance: number): Uint8Array {
+function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], ends: ShiftEnds, t: number, tolerance: number): Uint8Array {
   const n = gradients.length;
   const out = new Uint8Array(n);
   const inside = 1 - INNER_DRAW_OUTSIDE;
   const tLog2 = Math.log2(t);
+  // the ends' numbers as the profiles give them (ShiftEnds: the rms, log2 of it, the spread, the count of nonzero
+  // elements), read off typed arrays
+  const m = ends.made();
   for (let i = 0; i < n; i++) {
-    const { start, end } = gradients[i]!;
-    const shape = start.shape;
-    if ((shape !== "gaussian" && shape !== "half-gaussian") || (start.bound !== undefined && start.bound > 0)) continue;
-    const s0 = start.log2Spread;
-    const s1 = end.log2Spread;
+    if (m.closed[i] === 0) continue;
+    const s0 = m.spread[2 * i]!;
+    const s1 = m.spread[2 * i + 1]!;
     // a positive rms and spread at every point before the end, and nonzero elements: the fast path's conditions
-    if (!(start.rms > 0) || !(nonzeroElements(start) > 0) || !(s0 > 0) || !(s1 >= 0)) continue;
-    const l0 = Math.log2(start.rms);
+    if (!(m.rms[2 * i]! > 0) || !(m.count[2 * i]! > 0) || !(s0 > 0) || !(s1 >= 0)) continue;
+    const l0 = m.rmsLog2[2 * i]!;
     // profileBetween keeps the start's rms where the end's is not positive
-    const l1 = end.rms > 0 ? Math.log2(end.rms) : l0;
+    const l1 = m.rms[2 * i + 1]! > 0 ? m.rmsLog2[2 * i + 1]! : l0;
     // first Chernoff's bound on the closed form's share (src/risk/bounds.ts energyBelowWithinLog2Of), at the smaller
     // rms and the wider spread of the two ends (each point's log2 rms and spread lie between the ends', a billionth of
     // a binade and a trillionth of the spread given for their rounding): within the tolerance at t and every threshold
@@ -790,7 +808,7 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
       out[i] = 1;
       continue;
     }
-    const law = elementLaw(start);
+    const law = elementLaw(gradients[i]!.start);
     const limit = tolerance * (1 - 1e-9);
     // the inner draw's bound first: where it passes, so does the smaller of the two (rounding keeps the order), and the
     // outer draw's share is not needed
@@ -811,14 +829,28 @@ function flushWithinBeforeEnd(gradients: readonly GradientProfiles[], t: number,
  * gradient's start and end profiles, made on first use for every point of the horizon: at 2i (start) and 2i + 1 (end),
  * the rms and its logarithm, the spread, the count of nonzero elements, whether the bounds apply to the law and count (as anyAboveEnclosure's,
  * src/scale/overflow-enclosure.ts enclosureApplies: a Gaussian law, 16 elements or more), the levels of the count
- * (three each), the bound and its log2 (a billionth of a binade low; +∞ without one), and the moments of the count's
+ * (five each), the bound and its log2 (a billionth of a binade low; +∞ without one), and the moments of the count's
  * grid neighbours (made on first use); per tensor whether both rms are positive (the rms then moves geometrically,
- * profileBetween) and whether its start's law is Gaussian with 16 elements or more. Read off the profiles once per
- * model, in typed arrays every point reads (a profile's fields are slow to reach, its objects being of many kinds).
+ * profileBetween), whether its start's law is Gaussian with 16 elements or more, and whether it is Gaussian or
+ * half-Gaussian without a positive bound (the flushing's closed form, flushWithinBeforeEnd). Read off the profiles once
+ * per model, in typed arrays every point and the flushing read (a profile's fields are slow to reach, its objects being
+ * of many kinds).
  */
 class ShiftEnds {
   private made_:
-    | { rms: Float64Array; rmsLog2: Float64Array; spread: Float64Array; count: Float64Array; ok: Uint8Array; levels: Float64Array; bound: Float64Array; rawBound: Float64Array; bothRms: Uint8Array; gaussian: Uint8Array }
+    | {
+        rms: Float64Array;
+        rmsLog2: Float64Array;
+        spread: Float64Array;
+        count: Float64Array;
+        ok: Uint8Array;
+        levels: Float64Array;
+        bound: Float64Array;
+        rawBound: Float64Array;
+        bothRms: Uint8Array;
+        gaussian: Uint8Array;
+        closed: Uint8Array;
+      }
     | undefined;
   // per end (2i start, 2i + 1 end): the moments of the grid counts about its count (enclosureMoments), made on first use
   private readonly below: (LevelMoments | undefined)[];
@@ -864,10 +896,13 @@ class ShiftEnds {
       rawBound: table.bound,
       bothRms: new Uint8Array(n),
       gaussian: new Uint8Array(n),
+      closed: new Uint8Array(n),
     };
     for (let i = 0; i < n; i++) {
       const g = this.gradients[i]!;
       m.bothRms[i] = g.start.rms > 0 && g.end.rms > 0 ? 1 : 0;
+      const shape = g.start.shape;
+      m.closed[i] = (shape === "gaussian" || shape === "half-gaussian") && !(g.start.bound !== undefined && g.start.bound > 0) ? 1 : 0;
       // the table's levels and numbers of both profiles, the levels of end j at LEVELS·j
       table.at(i, g.start, g.end);
       for (let side = 0; side < 2; side++) {
