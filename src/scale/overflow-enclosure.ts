@@ -422,14 +422,17 @@ export function shiftLevels(n: number, into: Float64Array, at: number): void {
 export const SHIFT_LEVELS_LENGTH = 5;
 
 /**
- * The shifted-tail bounds at x = log2(t/rms) for spread s and a count's levels, into `into` at `at` and `at + 1`
- * ([low, high]). Widened by 1e-4 of the value for what separates the computed integral from the probability (2e-5
+ * The shifted-tail bounds at x = log2(t/rms) for spread s and a count's levels (the upper bound split at the middle
+ * level, ShiftLevels), into `into` at `at` and `at + 1` ([low, high]). Widened by 1e-4 of the value for what separates the computed integral from the probability (2e-5
  * above); a lower bound under 1e-15 is taken as 0 (the integral's rule covers ±9 standard deviations of the draws).
  * The caller checks that the bounds apply ({@link enclosureApplies}).
  */
-export function shiftBounds(x: number, s: number, high: number, low: number, lowMass: number, into: Float64Array, at: number): void {
+export function shiftBounds(x: number, s: number, high: number, low: number, lowMass: number, middle: number, middleTail: number, into: Float64Array, at: number): void {
   const tail = normalSf((x - high) / s);
-  into[at + 1] = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  // the upper bound split at the middle level where that is lower (and taken whole where it is not a number)
+  const split = (normalSf((x - middle) / s) + middleTail * tail + 2 ** -64) * (1 + 1e-4);
+  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  into[at + 1] = split < one ? split : one;
   // c_lo < c_hi, so the lower bound's tail is at most the upper's (Q falls; the fast tail within 2.4e-7 of that order):
   // under 1e-15 with it, without evaluating it
   if (tail < 1e-15 / (1 + 1e-6)) {
@@ -499,9 +502,10 @@ export const SHIFT_GRID_ORIGIN = -TAIL_LOW * TAIL_STEPS;
 /**
  * {@link shiftBounds} with each normal tail bounded by the grid points about its argument instead of evaluated: a
  * little looser (at most a factor e^{(u + 1)/256} on Q(u), 4% at u = 8, against the shift's factor of a few) for a table
- * read each. For the simulation's sweeps over every tensor; the same contract as shiftBounds.
+ * read each, and the upper bound split at the middle level c_mid where that is lower (middleTail the bound on
+ * P(V > c_mid); see ShiftLevels). For sweeps over every tensor; the same contract as shiftBounds.
  */
-export function shiftBoundsTabled(x: number, s: number, high: number, low: number, lowMass: number, into: Float64Array, at: number): void {
+export function shiftBoundsTabled(x: number, s: number, high: number, low: number, lowMass: number, middle: number, middleTail: number, into: Float64Array, at: number): void {
   const table = tailGrid();
   const last = table.length - 1;
   // upper: Q((x − c_hi)/s) ≤ Q at the grid point at or below the argument (1 below the grid)
@@ -509,10 +513,14 @@ export function shiftBoundsTabled(x: number, s: number, high: number, low: numbe
   const j = Math.floor(up);
   const tail = j < 0 ? 1 : j >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[j] as number) * (1 + TAIL_FIT);
   if (!(tail === tail)) {
-    shiftBounds(x, s, high, low, lowMass, into, at);
+    shiftBounds(x, s, high, low, lowMass, middle, middleTail, into, at);
     return;
   }
-  into[at + 1] = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  const i = Math.floor(((x - middle) / s - TAIL_LOW) * TAIL_STEPS);
+  const middleQ = i < 0 ? 1 : i >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[i] as number) * (1 + TAIL_FIT);
+  const split = (middleQ + middleTail * tail + 2 ** -64) * (1 + 1e-4);
+  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  into[at + 1] = split < one ? split : one;
   // lower: Q((x − c_lo)/s) ≥ Q at the grid point at or above the argument (0 above the grid); c_lo < c_hi, so it is at
   // most the upper's tail: under 1e-15 with it, without a read
   if (tail < 1e-15) {

@@ -413,7 +413,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     const spread = table.spread[j]!;
     if (applies) {
       const levels = table.levels;
-      shiftBoundsTabled(x, spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, into, 0);
+      shiftBoundsTabled(x, spread, levels[base]!, levels[base + 1]!, levels[base + 2]!, levels[base + 3]!, levels[base + 4]!, into, 0);
       if (!(into[1]! > SEGMENT_ENOUGH)) return;
       if (spread >= 1 && enclosureWith(table.momentsBelow(j, profile), table.momentsAbove(j), spread, x, ENCLOSED, 0)) {
         if (ENCLOSED[0]! > into[0]!) into[0] = ENCLOSED[0]!;
@@ -491,7 +491,7 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
       return;
     }
     const levels = table.levels;
-    shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, ROUGH_OF, 0);
+    shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, levels[base + 3]!, levels[base + 4]!, ROUGH_OF, 0);
   }
 
   // The moment bounds with the remainder at its peak (overflow-enclosure.ts enclosureQuick) of the worse of the two
@@ -647,7 +647,8 @@ const SHIFT_RMS_LOG2 = 7;
 const SHIFT_SPREAD = 8;
 const SHIFT_HIGH = 9;
 const SHIFT_LOW = 10;
-const SHIFT_FIELDS = 11;
+const SHIFT_MIDDLE_LEVEL = 11;
+const SHIFT_FIELDS = 12;
 // one tensor's shifted-tail bounds in the simulation's sweep
 const SHIFTED = new Float64Array(2);
 // one tensor's moment bounds in the simulation's narrowing
@@ -965,7 +966,7 @@ class HorizonPoint {
   // per tensor here: the constants of its shifted-tail bounds (overflow-enclosure.ts shiftBounds), made on first sweep,
   // SHIFT_FIELDS numbers each in one array (the sweep reads a tensor's together): its bound (−∞ where the law has none of
   // these bounds), slope, up, middle and down (shiftBoundsGridded's arguments as log2 t·slope + up, + middle and + down),
-  // middleTail and mass, and the numbers shiftBounds takes where those arguments are not numbers
+  // middleTail and mass, and the numbers shiftBounds takes where those arguments are not numbers (the middle level last)
   // (made for the tensors below `made`, in blocks as the sweeps reach them: a sweep that stops early, its overflow
   // certain, leaves the rest unmade)
   private shifts: Float64Array | undefined;
@@ -1001,7 +1002,7 @@ class HorizonPoint {
         // the grid arguments as affine functions of log2 t (shiftBoundsGridded), else the tails themselves
         const at = levelLog2 * c[f + SHIFT_SLOPE]!;
         if (!shiftBoundsGridded(at + c[f + SHIFT_UP]!, at + c[f + SHIFT_MIDDLE]!, c[f + SHIFT_MIDDLE_TAIL]!, at + c[f + SHIFT_DOWN]!, c[f + SHIFT_MASS]!, SHIFTED, 0)) {
-          shiftBounds(levelLog2 - c[f + SHIFT_RMS_LOG2]!, c[f + SHIFT_SPREAD]!, c[f + SHIFT_HIGH]!, c[f + SHIFT_LOW]!, c[f + SHIFT_MASS]!, SHIFTED, 0);
+          shiftBounds(levelLog2 - c[f + SHIFT_RMS_LOG2]!, c[f + SHIFT_SPREAD]!, c[f + SHIFT_HIGH]!, c[f + SHIFT_LOW]!, c[f + SHIFT_MASS]!, c[f + SHIFT_MIDDLE_LEVEL]!, c[f + SHIFT_MIDDLE_TAIL]!, SHIFTED, 0);
         }
         if (SHIFTED[0]! > lows[i]!) lows[i] = SHIFTED[0]!;
         if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
@@ -1064,6 +1065,7 @@ class HorizonPoint {
       c[f + SHIFT_SPREAD] = spread;
       c[f + SHIFT_HIGH] = high;
       c[f + SHIFT_LOW] = low;
+      c[f + SHIFT_MIDDLE_LEVEL] = middle;
       c[f + SHIFT_MASS] = ends.levels[l + 2]!;
       c[f + SHIFT_MIDDLE_TAIL] = ends.levels[l + 4]!;
       c[f + SHIFT_BOUND] = ends.bound[j]!;

@@ -176,7 +176,7 @@ describe("shiftBounds", () => {
         (n, s, u) => {
           shiftLevels(n, levels, 0);
           const x = levels[0]! + s * u;
-          shiftBounds(x, s, levels[0]!, levels[1]!, levels[2]!, into, 0);
+          shiftBounds(x, s, levels[0]!, levels[1]!, levels[2]!, levels[3]!, levels[4]!, into, 0);
           const lower = levels[2]! * normalSf((x - levels[1]!) / s);
           // where the upper bound's own tail is under 1e-15 the second tail is skipped
           if (normalSf((x - levels[0]!) / s) < 1e-15) skipped++;
@@ -208,19 +208,20 @@ describe("shiftBoundsTabled", () => {
           const t = 2 ** above;
           expect(enclosureApplies(p, t)).toBe(true);
           shiftLevels(n, levels, 0);
-          shiftBoundsTabled(above, s, levels[0]!, levels[1]!, levels[2]!, tabled, 0);
-          shiftBounds(above, s, levels[0]!, levels[1]!, levels[2]!, plain, 0);
+          shiftBoundsTabled(above, s, levels[0]!, levels[1]!, levels[2]!, levels[3]!, levels[4]!, tabled, 0);
+          shiftBounds(above, s, levels[0]!, levels[1]!, levels[2]!, levels[3]!, levels[4]!, plain, 0);
           const value = probabilityAnyAbove(p, t);
           expect(tabled[0]).toBeLessThanOrEqual(value);
           expect(tabled[1]).toBeGreaterThanOrEqual(value);
           // shiftBounds' own, to the fast tail's 1.2e-7 each way (the grid's values are the same fast tail)
           expect(tabled[0]).toBeLessThanOrEqual(plain[0]! * (1 + 3e-7));
           expect(tabled[1]).toBeGreaterThanOrEqual(plain[1]! * (1 - 3e-7));
-          const uHigh = (above - levels[0]!) / s;
+          // the upper bound's tails at c_hi and at the middle level c_mid < c_hi (the larger argument)
+          const uMiddle = (above - levels[3]!) / s;
           const uLow = (above - levels[1]!) / s;
           // ln Q falls at the rate φ(u)/Q(u) ≤ max(0, u) + 1 (the inverse Mills ratio, from memory): a grid step of 1/256
           // moves Q by at most that factor
-          expect(tabled[1]).toBeLessThanOrEqual(Math.min(1, plain[1]! * Math.exp((Math.max(0, uHigh) + 1) / 256 + 1e-6)));
+          expect(tabled[1]).toBeLessThanOrEqual(Math.min(1, plain[1]! * Math.exp((Math.max(0, uMiddle) + 1) / 256 + 1e-6)));
           if (plain[0]! > 0 && uLow < 38) expect(tabled[0]).toBeGreaterThanOrEqual(plain[0]! * Math.exp(-(Math.max(0, uLow + 1 / 256) + 1) / 256 - 1e-6));
         },
       ),

@@ -186,7 +186,7 @@ describe("shiftBounds", () => {
   const levels = new Float64Array(SHIFT_LEVELS_LENGTH);
   const bounds = (p: MagnitudeProfile, t: number): [number, number] => {
     shiftLevels(p.elements * (1 - p.zeroFraction), levels, 0);
-    shiftBounds(Math.log2(t) - Math.log2(p.rms), p.log2Spread, levels[0]!, levels[1]!, levels[2]!, into, 0);
+    shiftBounds(Math.log2(t) - Math.log2(p.rms), p.log2Spread, levels[0]!, levels[1]!, levels[2]!, levels[3]!, levels[4]!, into, 0);
     return [into[0]!, into[1]!];
   };
 
