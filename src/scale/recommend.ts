@@ -656,11 +656,14 @@ const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
 // HorizonPoint.sweep's products over the tensors it keeps, Π(1 − low) and Π(1 − high), for OverflowNarrowing.update,
-// and 1 where one of them is not integrated
-const SWEPT = new Float64Array(3);
+// 1 where one of them is not integrated, and 1 where it left out one whose upper bound is above 2^−54
+// (at most DROPPED: the passes after the sweep leave such tensors out, the upper bound widened by n·DROPPED for them,
+// OverflowNarrowing.boundBy; a draw that close to the bounds is left to the exact value, which takes every tensor)
+const SWEPT = new Float64Array(4);
 // BoundedCurves.boundsOf's moment bounds, before they are merged with the shifted tails' or the segment's
 const ENCLOSED = new Float64Array(2);
 const SEGMENT_ENOUGH = 1e-9;
+const DROPPED = 2 ** -30;
 
 /**
  * Overflow probability per step over all gradient tensors as they drift from their start to their end profiles: the
@@ -987,6 +990,7 @@ class HorizonPoint {
    */
   sweep(levelLog2: number, lows: Float64Array, highs: Float64Array, state: Uint8Array, live: Int32Array, count: number, into: Float64Array, widen: number): number {
     const c = (this.shifts ??= new Float64Array(SHIFT_FIELDS * this.n));
+    into[3] = 0;
     let kept = 0;
     let noneHigh = 1;
     let noneLow = 1;
@@ -1008,7 +1012,10 @@ class HorizonPoint {
         if (SHIFTED[1]! < highs[i]!) highs[i] = SHIFTED[1]!;
       }
       const high = highs[i]!;
-      if (!(high > 2 ** -54)) continue;
+      if (!(high > DROPPED)) {
+        if (high > 2 ** -54) into[3] = 1;
+        continue;
+      }
       live[kept++] = i;
       if (!integrated) waiting = 1;
       noneHigh *= 1 - lows[i]!;
@@ -1194,6 +1201,8 @@ class OverflowNarrowing implements OverflowBounds {
   // bounds here are the larger scale's (still valid: p_i grows with the scale), and no pass over the tensors visits them
   private readonly live: Int32Array;
   private liveCount = 0;
+  // true once a sweep here or at a larger scale left out a tensor whose upper bound lies in (2^−54, DROPPED] (boundBy)
+  private dropped = false;
 
   constructor(
     private readonly point: HorizonPoint,
@@ -1312,6 +1321,7 @@ class OverflowNarrowing implements OverflowBounds {
         if (this.lead.index >= 0 && this.lead.index < n) first = this.lead.index;
       } else {
         highs.set(above.highs);
+        this.dropped = above.dropped;
         const aboveLive = above.live;
         for (let k = 0; k < above.liveCount; k++) {
           const i = aboveLive[k]!;
@@ -1339,6 +1349,7 @@ class OverflowNarrowing implements OverflowBounds {
       this.sweepPending = false;
       this.liveCount = this.point.sweep(this.levelLog2, this.lows, highs, this.state, this.live, this.liveCount, SWEPT, this.widen());
       if (SWEPT[2] === 1) this.queuePending = true;
+      if (SWEPT[3] === 1) this.dropped = true;
       swept = true;
     } else {
       if (this.queuePending) {
@@ -1433,10 +1444,16 @@ class OverflowNarrowing implements OverflowBounds {
     return 4 * (this.point.n + 2) * 2 ** -53;
   }
 
-  // low and high from the products Π(1 − low_i) (noneHigh) and Π(1 − high_i) (noneLow), as update() describes
+  // low and high from the products Π(1 − low_i) (noneHigh) and Π(1 − high_i) (noneLow), as update() describes; the
+  // tensors a sweep left out at an upper bound of at most DROPPED (their factors each at least 1 − DROPPED, so together
+  // at least 1 − n·DROPPED) widen the upper bound by n·DROPPED more
   private boundBy(noneHigh: number, noneLow: number): void {
     const widen = this.widen();
     this.low = overflowLow(noneHigh, widen);
+    if (this.dropped) {
+      this.high = Math.min(1, 1 - Math.max(0, noneLow * (1 - widen - this.point.n * DROPPED) - 1e-300));
+      return;
+    }
     // every factor exactly 1: the product is exactly 1
     this.high = noneLow === 1 ? 0 : Math.min(1, 1 - Math.max(0, noneLow * (1 - widen) - 1e-300));
   }

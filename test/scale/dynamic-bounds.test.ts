@@ -144,6 +144,40 @@ describe("the dynamic-scale model's bounds", () => {
     expect(certainEarly).toBeGreaterThan(0);
   });
 
+  it("contain the probability where the sweep leaves out tensors of tiny but nonzero probability, down to every one", () => {
+    // Gaussian tensors 9 to 11 binades under the overflow level at scale 1 (each P(any above) between about 1e-17 and
+    // 1e-10, some above 2^−54, all under 2^−30 at scales 1 and 1/2), then with a few 3 binades under it: the sweep leaves
+    // the quiet ones out of its products, and the upper bound must still cover them, and stay above 0 where they alone
+    // make the probability
+    const quiet = (log2Under: number): TensorPrediction => {
+      const profile: MagnitudeProfile = { elements: 8192, zeroFraction: 0, shape: "gaussian", rms: limits.overflowLevel * 2 ** -log2Under, log2Spread: 1 };
+      return { id: `q${log2Under}/activation-gradient`, layer: `q${log2Under}`, layerIndex: 0, family: "dense", role: "activation-gradient", slot: "gradients", shape: [8192], start: profile, end: profile, ledger: [], source: "predicted" };
+    };
+    const quietOnes = Array.from({ length: 40 }, (_, i) => quiet(9 + i / 20));
+    for (const set of [quietOnes, [...quietOnes.slice(0, 20), quiet(3), quiet(3.5), ...quietOnes.slice(20)]]) {
+      const directSet = (scale: number): number => {
+        let none = 1;
+        for (const t of set) none *= 1 - probabilityAnyAbove(profileAt(t, 0), limits.overflowLevel / scale);
+        return 1 - none;
+      };
+      const model = dynamicModel(set, limits, DEFAULT_WINDOW_OPTIONS);
+      for (const scale of [1, 0.5]) {
+        const exact = model.overflowProbability(scale, 0);
+        expect(Math.abs(exact - directSet(scale))).toBeLessThanOrEqual(1e-13);
+        expect(exact).toBeGreaterThan(0);
+        const b = model.overflowBounds!(scale, 0);
+        for (let step = 0; !b.exact; step++) {
+          expect(b.low).toBeLessThanOrEqual(exact);
+          expect(b.high).toBeGreaterThanOrEqual(exact);
+          b.narrow(step % 2 === 0 ? 0 : exact);
+          expect(step).toBeLessThan(10_000);
+        }
+        expect(b.low).toBe(exact);
+        expect(b.high).toBe(exact);
+      }
+    }
+  });
+
   it("give a simulation identical to one with the probability computed directly", () => {
     for (const seed of [1, 2, 3]) {
       const bounded = dynamicModel(tensors, limits, DEFAULT_WINDOW_OPTIONS);
