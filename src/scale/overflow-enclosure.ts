@@ -423,16 +423,14 @@ export const SHIFT_LEVELS_LENGTH = 5;
 
 /**
  * The shifted-tail bounds at x = log2(t/rms) for spread s and a count's levels (the upper bound split at the middle
- * level, ShiftLevels), into `into` at `at` and `at + 1` ([low, high]). Widened by 1e-4 of the value for what separates the computed integral from the probability (2e-5
- * above); a lower bound under 1e-15 is taken as 0 (the integral's rule covers ±9 standard deviations of the draws).
+ * level, ShiftLevels), into `into` at `at` and `at + 1` ([low, high]). Widened by 1e-4 of the value for what
+ * separates the computed integral from the probability (2e-5 above); a lower bound under 1e-15 is taken as 0 (the
+ * integral's rule covers ±9 standard deviations of the draws).
  * The caller checks that the bounds apply ({@link enclosureApplies}).
  */
 export function shiftBounds(x: number, s: number, high: number, low: number, lowMass: number, middle: number, middleTail: number, into: Float64Array, at: number): void {
   const tail = normalSf((x - high) / s);
-  // the upper bound split at the middle level where that is lower (and taken whole where it is not a number)
-  const split = (normalSf((x - middle) / s) + middleTail * tail + 2 ** -64) * (1 + 1e-4);
-  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
-  into[at + 1] = split < one ? split : one;
+  into[at + 1] = upperOfTwo(tail, normalSf((x - middle) / s), middleTail);
   // c_lo < c_hi, so the lower bound's tail is at most the upper's (Q falls; the fast tail within 2.4e-7 of that order):
   // under 1e-15 with it, without evaluating it
   if (tail < 1e-15 / (1 + 1e-6)) {
@@ -461,6 +459,26 @@ function tailGrid(): Float64Array {
 // the fast tail's relative error, both ways (below 1.2e-7, src/risk/_math.ts), with room
 const TAIL_FIT = 1.3e-7;
 
+// Q at grid index j bounded above: the grid point at or below the argument (1 below the grid; not a number where j is not)
+function gridTailAbove(table: Float64Array, j: number): number {
+  const last = table.length - 1;
+  return j < 0 ? 1 : j >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[j] as number) * (1 + TAIL_FIT);
+}
+
+// Q at grid index k bounded below: the grid point at or above the argument (0 above the grid)
+function gridTailBelow(table: Float64Array, k: number): number {
+  const last = table.length - 1;
+  return k > last ? 0 : k <= 0 ? (table[0] as number) * (1 - TAIL_FIT) : (table[k] as number) * (1 - TAIL_FIT);
+}
+
+// The upper bound of shiftBounds and its tabled forms from Q at c_hi (`tail`) and at c_mid (`middleQ`): the bound split
+// at the middle level where it is the lower, else (or where it is not a number) c_hi's alone, each widened by 1e-4
+function upperOfTwo(tail: number, middleQ: number, middleTail: number): number {
+  const split = (middleQ + middleTail * tail + 2 ** -64) * (1 + 1e-4);
+  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
+  return split < one ? split : one;
+}
+
 /**
  * {@link shiftBoundsTabled} from its grid arguments, up = ((x − c_hi)/s − TAIL_LOW)·TAIL_STEPS, middle and down the same
  * with c_mid and c_lo, for a caller that keeps them as affine functions of log2 t (x = log2 t − log2 rms: up = log2
@@ -474,24 +492,15 @@ const TAIL_FIT = 1.3e-7;
  */
 export function shiftBoundsGridded(up: number, middle: number, middleTail: number, down: number, lowMass: number, into: Float64Array, at: number): boolean {
   const table = tailGrid();
-  const last = table.length - 1;
-  const j = Math.floor(up);
-  const tail = j < 0 ? 1 : j >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[j] as number) * (1 + TAIL_FIT);
+  const tail = gridTailAbove(table, Math.floor(up));
   if (!(tail === tail)) return false;
-  // Q at the middle level, bounded above as the top level's is; the two-level bound holds for any two levels, and the
-  // top level's alone where it is the lower (or the middle one is not a number)
-  const i = Math.floor(middle);
-  const middleQ = i < 0 ? 1 : i >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[i] as number) * (1 + TAIL_FIT);
-  const split = (middleQ + middleTail * tail + 2 ** -64) * (1 + 1e-4);
-  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
-  into[at + 1] = split < one ? split : one;
+  // Q at the middle level, bounded above as the top level's is; the two-level bound holds for any two levels
+  into[at + 1] = upperOfTwo(tail, gridTailAbove(table, Math.floor(middle)), middleTail);
   if (tail < 1e-15) {
     into[at] = 0;
     return true;
   }
-  const k = Math.ceil(down);
-  const lowerTail = k > last ? 0 : k <= 0 ? (table[0] as number) * (1 - TAIL_FIT) : (table[k] as number) * (1 - TAIL_FIT);
-  const lower = lowMass * lowerTail;
+  const lower = lowMass * gridTailBelow(table, Math.ceil(down));
   into[at] = lower < 1e-15 ? 0 : lower * (1 - 1e-4);
   return true;
 }
@@ -507,28 +516,19 @@ export const SHIFT_GRID_ORIGIN = -TAIL_LOW * TAIL_STEPS;
  */
 export function shiftBoundsTabled(x: number, s: number, high: number, low: number, lowMass: number, middle: number, middleTail: number, into: Float64Array, at: number): void {
   const table = tailGrid();
-  const last = table.length - 1;
   // upper: Q((x − c_hi)/s) ≤ Q at the grid point at or below the argument (1 below the grid)
-  const up = ((x - high) / s - TAIL_LOW) * TAIL_STEPS;
-  const j = Math.floor(up);
-  const tail = j < 0 ? 1 : j >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[j] as number) * (1 + TAIL_FIT);
+  const tail = gridTailAbove(table, Math.floor(((x - high) / s - TAIL_LOW) * TAIL_STEPS));
   if (!(tail === tail)) {
     shiftBounds(x, s, high, low, lowMass, middle, middleTail, into, at);
     return;
   }
-  const i = Math.floor(((x - middle) / s - TAIL_LOW) * TAIL_STEPS);
-  const middleQ = i < 0 ? 1 : i >= last ? (table[last] as number) * (1 + TAIL_FIT) : (table[i] as number) * (1 + TAIL_FIT);
-  const split = (middleQ + middleTail * tail + 2 ** -64) * (1 + 1e-4);
-  const one = Math.min(1, (tail + 2 ** -64) * (1 + 1e-4));
-  into[at + 1] = split < one ? split : one;
+  into[at + 1] = upperOfTwo(tail, gridTailAbove(table, Math.floor(((x - middle) / s - TAIL_LOW) * TAIL_STEPS)), middleTail);
   // lower: Q((x − c_lo)/s) ≥ Q at the grid point at or above the argument (0 above the grid); c_lo < c_hi, so it is at
   // most the upper's tail: under 1e-15 with it, without a read
   if (tail < 1e-15) {
     into[at] = 0;
     return;
   }
-  const k = Math.ceil(((x - low) / s - TAIL_LOW) * TAIL_STEPS);
-  const lowerTail = k > last ? 0 : k <= 0 ? (table[0] as number) * (1 - TAIL_FIT) : (table[k] as number) * (1 - TAIL_FIT);
-  const lower = lowMass * lowerTail;
+  const lower = lowMass * gridTailBelow(table, Math.ceil(((x - low) / s - TAIL_LOW) * TAIL_STEPS));
   into[at] = lower < 1e-15 ? 0 : lower * (1 - 1e-4);
 }

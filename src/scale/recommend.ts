@@ -656,8 +656,8 @@ const ENCLOSURE = new Float64Array(2);
 // one tensor's flushed-share bounds in the simulation's flushing test
 const FLUSHED = new Float64Array(2);
 // HorizonPoint.sweep's products over the tensors it keeps, Π(1 − low) and Π(1 − high), for OverflowNarrowing.update,
-// 1 where one of them is not integrated, and 1 where it left out one whose upper bound is above 2^−54
-// (at most DROPPED: the passes after the sweep leave such tensors out, the upper bound widened by n·DROPPED for them,
+// 1 where one of them is not integrated, and 1 where it left out a tensor whose upper bound lies in (2^−54, DROPPED]
+// (the passes after the sweep leave such tensors out, the upper bound widened by n·DROPPED for them,
 // OverflowNarrowing.boundBy; a draw that close to the bounds is left to the exact value, which takes every tensor)
 const SWEPT = new Float64Array(4);
 // BoundedCurves.boundsOf's moment bounds, before they are merged with the shifted tails' or the segment's

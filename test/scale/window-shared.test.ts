@@ -271,9 +271,9 @@ describe("FlushLike", () => {
     const plan = { gradients: "binary16" } as unknown as PrecisionPlan;
     const profiles = gradientProfiles(tensors);
     const half = limitsFor(plan, "binary16");
-    const brain = limitsFor({ ...plan, gradients: "bfloat16" }, "bfloat16");
+    const bfloat = limitsFor({ ...plan, gradients: "bfloat16" }, "bfloat16");
     const a = boundedLossScaleCurves(tensors, half, profiles);
-    const b = boundedLossScaleCurves(tensors, brain, profiles);
+    const b = boundedLossScaleCurves(tensors, bfloat, profiles);
     for (let i = 0; i < tensors.length; i++) {
       expect(a[i]!.source).toBe(profiles[i]);
       expect(b[i]!.source).toBe(a[i]!.source);
@@ -285,8 +285,8 @@ describe("FlushLike", () => {
     const windowOf = lossScaleWindows(a, OPTIONS);
     windowOf();
     // (the two flush bounds a whole number of binades apart, as rankRemedies' flushShift asks)
-    const shift = Math.round(Math.log2(half.flushBound / brain.flushBound));
-    expect(brain.flushBound * 2 ** shift).toBe(half.flushBound);
+    const shift = Math.round(Math.log2(half.flushBound / bfloat.flushBound));
+    expect(bfloat.flushBound * 2 ** shift).toBe(half.flushBound);
     expect(lossScaleWindows(b, OPTIONS, { windows: windowOf, shift })()).toEqual(lossScaleWindow(b, OPTIONS));
   });
 });
