@@ -1,10 +1,10 @@
 import { describe, expect, it } from "vitest";
 import * as fc from "fast-check";
 import type { MagnitudeProfile, TensorPrediction } from "../../src/magnitude/types.js";
-import { erfc, normalPdf } from "../../src/numeric/normal.js";
+import { erfc, normalPdf, normalSf as preciseNormalSf } from "../../src/numeric/normal.js";
 import { FORMATS } from "../../src/formats/index.js";
 import { energyBelow, fractionBelow, nonzeroElements, probabilityAnyAbove, profileRisk, profileStatistics, rangeLimits } from "../../src/risk/profile.js";
-import { SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "../../src/risk/settle.js";
+import { capMean, capWithin, SETTLED, settledAnyAbove, settledBelow, settledEnergyBelow, UNSETTLED } from "../../src/risk/settle.js";
 import { subnormalNoise } from "../../src/risk/subnormal-noise.js";
 import { riskProfile } from "../../src/risk/profile.js";
 import { tensorFormatRisk, tensorStatistics } from "../../src/risk/tensor.js";
@@ -182,6 +182,68 @@ describe("settled shares next to SETTLED (the cap mean's tails, src/risk/settle.
     );
     expect(settled).toBeGreaterThan(50);
     expect(refused).toBeGreaterThan(50);
+  });
+});
+
+describe("the cap mean against a target told by its tails' bounds (src/risk/settle.ts capWithin)", () => {
+  // capWithin as it was before the Mills-ratio bounds: the mean without the cap, then capMean's own number
+  function direct(c: number, m: number, target: number): boolean {
+    if (!(c > 0)) return true;
+    if (!(m > 0)) return Math.min(1, c) <= target;
+    return c * Math.exp((m * m) / 2) <= target || capMean(Math.log(c), m) <= target;
+  }
+  const cases = fc.record({
+    // the crossing z* = ln(c)/m and the rate m; the target as a factor of the cap mean, often within a few per cent
+    crossing: fc.double({ min: -40, max: 3, noNaN: true }),
+    m: fc.double({ min: 1e-3, max: 16, noNaN: true }),
+    log10Factor: fc.oneof(
+      fc.integer({ min: -3000, max: 3000 }).map((k) => k / 1000),
+      fc.integer({ min: -2000, max: 2000 }).map((k) => k / 100_000),
+      fc.constant(0),
+    ),
+  });
+
+  it("gives capMean's answer for any rate, crossing and target, both answers met near the target", () => {
+    let within = 0;
+    let over = 0;
+    fc.assert(
+      fc.property(cases, ({ crossing, m, log10Factor }) => {
+        // (c and the mean normal doubles: ln c at least −640)
+        const c = Math.exp(crossing * m);
+        const mean = capMean(Math.log(c), m);
+        if (!(mean > 1e-300)) return true;
+        const target = mean * 10 ** log10Factor;
+        const answer = capWithin(c, m, target);
+        if (answer) within++;
+        else over++;
+        return answer === direct(c, m, target);
+      }),
+      { numRuns: 20_000 },
+    );
+    expect(within).toBeGreaterThan(1000);
+    expect(over).toBeGreaterThan(1000);
+  });
+
+  it("at a target equal to capMean's number, and one ulp either side of it", () => {
+    for (const m of [0.05, 0.7, 2.2, 6.4, 15]) {
+      for (const crossing of [-30, -8, -4.6, -1, -0.01, 0, 0.4]) {
+        const c = Math.exp(crossing * m);
+        const mean = capMean(Math.log(c), m);
+        for (const target of [mean, mean * (1 + 2 ** -52), mean * (1 - 2 ** -53), 0.5, 0.5 * (1 - 1e-9)]) {
+          expect(capWithin(c, m, target)).toBe(direct(c, m, target));
+        }
+      }
+    }
+  });
+
+  // the bounds themselves, Birnbaum 1942 below and Sampford 1953 above, against Q(x)/φ(x) from the precise tail
+  // (src/numeric/normal.ts, Cody 1969) where both are normal doubles
+  it("Mills ratio between 2/(x + √(x² + 4)) and 4/(3x + √(x² + 8)) for 0 ≤ x ≤ 36", () => {
+    for (let x = 0; x <= 36; x += 1 / 512) {
+      const ratio = preciseNormalSf(x) / normalPdf(x);
+      expect(ratio).toBeLessThanOrEqual((4 / (3 * x + Math.sqrt(x * x + 8))) * (1 + 1e-10));
+      expect(ratio).toBeGreaterThanOrEqual((2 / (x + Math.sqrt(x * x + 4))) * (1 - 1e-10));
+    }
   });
 });
 
