@@ -504,6 +504,24 @@ export function shiftBoundsGridded(up: number, middle: number, middleTail: numbe
   into[at] = lower < 1e-15 ? 0 : lower * (1 - 1e-4);
   return true;
 }
+/**
+ * The x from which {@link shiftBoundsTabled}'s two tails, for levels c_hi (`high`) and c_mid (`middle`) at spread
+ * s > 0, both read the grid at or past u = FAR_TAIL (a sixteenth of s to spare, far more than the rounding of
+ * (x − c)/s): Q falls, and upperOfTwo rises with both tails, so from there its upper bound is at most
+ * {@link shiftTabledFar}(middleTail), and its lower bound is 0.
+ */
+export function shiftTabledFarFrom(high: number, middle: number, s: number): number {
+  return Math.max(high, middle) + (FAR_TAIL + 1 / 16) * s;
+}
+
+/** {@link shiftBoundsTabled}'s upper bound at and past {@link shiftTabledFarFrom}: a few times 1e-19. */
+export function shiftTabledFar(middleTail: number): number {
+  const q = gridTailAbove(tailGrid(), (FAR_TAIL - TAIL_LOW) * TAIL_STEPS);
+  return upperOfTwo(q, q, middleTail);
+}
+// Q(9) ≈ 1.1e-19: two thousand tensors bounded so add ~1e-15, far under any overflow budget
+const FAR_TAIL = 9;
+
 /** {@link shiftBoundsGridded}'s grid steps per unit of the normal tail's argument, and the grid's origin (−TAIL_LOW·TAIL_STEPS). */
 export const SHIFT_GRID_STEPS = TAIL_STEPS;
 export const SHIFT_GRID_ORIGIN = -TAIL_LOW * TAIL_STEPS;

@@ -15,7 +15,7 @@ import type { PrecisionPlan } from "../spec/types.js";
 import { DEFAULT_DYNAMIC_SCALE, simulateDynamicScale, type DynamicScaleModel, type DynamicScaleResult, type DynamicScaleSettings, type OverflowBounds } from "./dynamic.js";
 import { lossScaleWindow, lossScaleWindows, DEFAULT_WINDOW_OPTIONS, type ScaledTensorCurves, type ScaleWindow, type WindowOptions, type WindowsOf } from "./window.js";
 import { BucketQueue } from "./heap.js";
-import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, SHIFT_LEVELS_LENGTH, type LevelMoments } from "./overflow-enclosure.js";
+import { enclosedLaw, enclosureHolds, enclosureMoments, enclosureQuick, enclosureWith, quickRemainder, shiftBounds, shiftBoundsGridded, shiftBoundsTabled, shiftLevels, shiftTabledFar, shiftTabledFarFrom, SHIFT_GRID_ORIGIN, SHIFT_GRID_STEPS, SHIFT_LEVELS_LENGTH, type LevelMoments } from "./overflow-enclosure.js";
 import { fewerFindings, findingsTotal, unscaledAsGood, type PickWeighing, type ScaledFindings } from "./pick.js";
 import { percent, plainNumber, scaleWords } from "../risk/words.js";
 
@@ -492,6 +492,32 @@ class BoundedCurves extends CurveParts implements ScaledTensorCurves {
     }
     const levels = table.levels;
     shiftBoundsTabled(tLog2 - table.rmsLog2[j]!, table.spread[j]!, levels[base]!, levels[base + 1]!, levels[base + 2]!, levels[base + 3]!, levels[base + 4]!, ROUGH_OF, 0);
+  }
+
+  // The shifted tails' far end (src/scale/window.ts ScaledTensorCurves.overflowRiskFarInto): where they apply to both
+  // profiles, the largest k at which x = log2 t − log2 rms of each lies past overflow-enclosure.ts shiftTabledFarFrom (a
+  // millionth of a binade to spare for the rounding of log2 t), and the larger of their upper bounds from there (a few
+  // times 1e-19): at least roughOf's upper bound at every k up to it. Past a profile's bound the probability is 0.
+  overflowRiskFarInto(into: Float64Array): boolean {
+    const base = this.levelsAt();
+    const table = this.levels;
+    const levels = table.levels;
+    const sides = this.parts.same ? 1 : 2;
+    let from = -Infinity;
+    let far = 0;
+    for (let side = 0; side < sides; side++) {
+      const j = 2 * this.index + side;
+      if (table.applies[j] === 0) return false;
+      const l = base + LEVELS * side;
+      from = Math.max(from, table.rmsLog2[j]! + shiftTabledFarFrom(levels[l]!, levels[l + 3]!, table.spread[j]!));
+      far = Math.max(far, shiftTabledFar(levels[l + 4]!));
+    }
+    // (t = overflowLevel·2^−k stays a positive double up to k = 1000)
+    const k = Math.min(1000, Math.floor(Math.log2(this.limits.overflowLevel) - from - 1e-6));
+    if (!Number.isFinite(k)) return false;
+    into[0] = k;
+    into[1] = far;
+    return true;
   }
 
   // The moment bounds with the remainder at its peak (overflow-enclosure.ts enclosureQuick) of the worse of the two

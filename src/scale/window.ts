@@ -54,6 +54,12 @@ export interface ScaledTensorCurves {
    * (two doubles returned from calls are two heap numbers); false (nothing written) where the curve has none
    */
   overflowRiskRoughInto?(log2Scale: number, into: Float64Array): boolean;
+  /**
+   * optional: an exponent K and a bound B into `into` at 0 and 1, overflowRisk(k) ≤ B at every k ≤ K; false (nothing
+   * written) where there are none. Worked out once per tensor for a few operations, with B tiny (far below any budget):
+   * the searches then bound such a tensor at those exponents by B alone, without its bounds there
+   */
+  overflowRiskFarInto?(into: Float64Array): boolean;
   /** optional lower bound on overflowRisk that comes with overflowRiskUpper at the same exponent, at no more cost */
   overflowRiskLower?(log2Scale: number): number;
   /**
@@ -362,6 +368,10 @@ class WindowSearch {
   // k, so it is 0 at every exponent below, and the union bound and the edge setter's scan pass such a tensor by one
   // comparison (most tensors of a large network at the extreme exponents a search starts from)
   private readonly zeroTo: Float64Array;
+  // per tensor its overflowRiskFarInto's exponent (NaN until asked; −∞ where the curve has none) and bound: at or below
+  // the exponent the tensor is bounded by the bound alone (at the edges of a stack of alike layers, most of its tensors)
+  private readonly farTo: Float64Array;
+  private readonly farBound: Float64Array;
 
   // each edge setter's index by its id, where the ids are unique (the remedies set setters aside, and their windows then
   // find them here instead of comparing the id with every tensor's)
@@ -406,6 +416,20 @@ class WindowSearch {
     this.worstHighs = new Float64Array(this.n);
     this.visited = new Uint8Array(this.n);
     this.zeroTo = new Float64Array(this.n).fill(-Infinity);
+    this.farTo = new Float64Array(this.n).fill(NaN);
+    this.farBound = new Float64Array(this.n);
+  }
+
+  // whether tensor i's overflow risk at k is bounded by farBound[i] (overflowRiskFarInto, asked once)
+  private far(k: number, i: number): boolean {
+    let to = this.farTo[i] as number;
+    if (to !== to) {
+      const into = this.pair;
+      to = (this.tensors[i] as ScaledTensorCurves).overflowRiskFarInto?.(into) === true ? (into[0] as number) : -Infinity;
+      if (to > -Infinity) this.farBound[i] = into[1] as number;
+      this.farTo[i] = to;
+    }
+    return k <= to;
   }
 
   // tensor i's flushedEnergyGrowth where it offers one (≥ 1 and finite), else 0; read once
@@ -742,7 +766,8 @@ class WindowSearch {
     let taken = 0;
     for (let r = 0; r < this.n && taken < FEW; r++) {
       const i = order[r] as number;
-      if (active[i] === 0 || k <= (zeroTo[i] as number)) continue;
+      // (a tensor bounded by its far bound adds nothing to a sum of lower bounds)
+      if (active[i] === 0 || k <= (zeroTo[i] as number) || this.far(k, i)) continue;
       taken++;
       const flags = table.flags[i] as number;
       let a = 0;
@@ -771,7 +796,8 @@ class WindowSearch {
     const table = this.table("overflow", k);
     const lows = this.lows;
     const highs = this.highs;
-    // 0: bounds from what is known, 1: the upper bound at k taken, 2: exact, 3: set aside
+    // 0: bounds from what is known, 1: the upper bound at k taken, 2: exact, 3: set aside, 4: its far bound (in the
+    // sums, never narrowed: only the exact sum at the end takes its value)
     const state = this.state;
     let low = 0;
     let high = 0;
@@ -781,6 +807,14 @@ class WindowSearch {
       // a tensor set aside, or one whose risk is 0 here, adds nothing to either sum: left out of them (state 3)
       if (active[i] === 0 || k <= (zeroTo[i] as number)) {
         state[i] = 3;
+        continue;
+      }
+      if (this.far(k, i)) {
+        const b = this.farBound[i] as number;
+        lows[i] = 0;
+        highs[i] = b;
+        state[i] = 4;
+        high += b;
         continue;
       }
       const flags = table.flags[i] as number;
@@ -1044,6 +1078,11 @@ class WindowSearch {
       // a risk of 0 here: bounded by 0, and it raises no floor (every lower bound of it is at most 0)
       if (curve === "overflow" && k <= (zeroTo[i] as number)) {
         highs[i] = 0;
+        continue;
+      }
+      // bounded by its far bound: likewise (it raises no floor), and beaten by any value above that bound
+      if (curve === "overflow" && this.far(k, i)) {
+        highs[i] = this.farBound[i] as number;
         continue;
       }
       // a flushed share within the tolerance by the curve's once-per-tensor bound: bounded by the tolerance, raising no

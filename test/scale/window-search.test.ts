@@ -226,6 +226,95 @@ describe("lossScaleWindow searches", () => {
   });
 });
 
+describe("lossScaleWindow searches with far bounds", () => {
+  // overflowRiskFarInto: a bound B on the risk at every exponent up to K (the curve's sup there, widened), which the
+  // searches take in place of the tensor's bounds at those exponents; B small or not, K anywhere (or none), the window,
+  // its edges and their setters are the definition's, for a set, its subsets and an empty window's held sets
+  const far = fc.record({ to: fc.option(fc.integer({ min: -14, max: 14 }), { nil: null }), widen: fc.constantFrom(0, 1e-9, 0.5, 1e3) });
+  const withFar = (tensors: ScaledTensorCurves[], fars: readonly { to: number | null; widen: number }[]): ScaledTensorCurves[] =>
+    tensors.map((t, i) => {
+      const f = fars[i % fars.length]!;
+      if (f.to === null) return { ...t, overflowRiskFarInto: () => false };
+      // the risk rises with k: its value at K bounds every exponent below
+      const bound = Math.min(1, t.overflowRisk(f.to) * (1 + f.widen) + f.widen * 1e-20);
+      return {
+        ...t,
+        overflowRiskFarInto: (into: Float64Array) => {
+          into[0] = f.to!;
+          into[1] = bound;
+          return true;
+        },
+      };
+    });
+
+  it("give the window of the definition for a set and its subsets", () => {
+    fc.assert(
+      fc.property(
+        fc.array(shape, { minLength: 1, maxLength: 10 }),
+        fc.array(far, { minLength: 1, maxLength: 4 }),
+        fc.array(fc.array(fc.nat(12), { maxLength: 4 }), { maxLength: 3 }),
+        (shapes, fars, asides) => {
+          const tensors = withFar(curves(shapes), fars);
+          const windowOf = lossScaleWindows(tensors, OPTIONS);
+          expect(edgesOf(windowOf())).toEqual(directWindow(tensors, OPTIONS));
+          for (const aside of asides) {
+            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+            const rest = tensors.filter((t) => !ids.has(t.id));
+            const w = windowOf(ids);
+            if (rest.length === 0) continue;
+            expect(edgesOf(w)).toEqual(directWindow(rest, OPTIONS));
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
+
+  it("give each held set's window of the definition for an empty window, and for deep stacks with rough bounds", () => {
+    const emptyShape = shape.map((s) => ({ ...s, overflowCentre: s.overflowCentre / 4 - 6, flushCentre: s.flushCentre / 4 + 6 }));
+    fc.assert(
+      fc.property(fc.array(emptyShape, { minLength: 2, maxLength: 10 }), fc.array(far, { minLength: 1, maxLength: 3 }), fc.constantFrom("lower" as const, "upper" as const), (shapes, fars, edge) => {
+        const tensors = withFar(curves(shapes), fars);
+        const windowOf = lossScaleWindows(tensors, OPTIONS, undefined, true);
+        let current = windowOf();
+        expect(edgesOf(current)).toEqual(directWindow(tensors, OPTIONS));
+        const held = new Set<string>();
+        for (let i = 0; i < 6 && current.empty; i++) {
+          const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
+          if (setter === null) break;
+          held.add(setter);
+          const rest = tensors.filter((t) => !held.has(t.id));
+          if (rest.length === 0) break;
+          current = windowOf(new Set(held));
+          expect(edgesOf(current)).toEqual(directWindow(rest, OPTIONS));
+        }
+      }),
+      { numRuns: 200 },
+    );
+    fc.assert(
+      fc.property(fc.integer({ min: 1, max: 400 }), fc.double({ min: -8, max: 8, noNaN: true }), fc.constantFrom(0, 0.3), far, (count, centre, slack, f) => {
+        const tensors: ScaledTensorCurves[] = Array.from({ length: count }, (_, i) => {
+          // most tensors far below the rest (their risk tiny), as at the edges of a stack of alike layers
+          const shift = i % 5 === 0 ? 0 : 12;
+          const overflowRisk = (k: number) => logistic((k - centre - shift - (i % 7) * 0.1) * 1.5);
+          return {
+            id: `layer${i}`,
+            overflowRisk,
+            flushedEnergy: (k: number) => logistic((centre - 6 - k) * 1.5),
+            overflowRiskBounds: (k: number) => [0, Math.min(1, overflowRisk(k) * 1e3 + 1e-3)] as const,
+            overflowRiskRough: (k: number) => Math.min(1, overflowRisk(k) * (1 + 10 * slack) + slack * 1e-6),
+            overflowRiskRoughLower: (k: number) => overflowRisk(k) * (1 - slack),
+            edgeGuessesLog2: { overflow: Math.round(centre), flush: 0 },
+          };
+        });
+        const withBounds = withFar(tensors, [f, { to: f.to === null ? null : f.to - 3, widen: 0 }]);
+        expect(edgesOf(lossScaleWindow(withBounds, OPTIONS))).toEqual(directWindow(tensors, OPTIONS));
+      }),
+      { numRuns: 60 },
+    );
+  });
+});
+
 // The searches visit tensors by a priority order: by key, ties by index. The reference is a plain comparison sort
 // (common practice); the order packs whole keys over a short range into a counting sort, others take the sort itself.
 describe("priorityOrder", () => {

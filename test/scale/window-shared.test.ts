@@ -189,6 +189,51 @@ describe("overflowRiskRough", () => {
   });
 });
 
+describe("overflowRiskFarInto", () => {
+  it("bounds the gradient curves' overflow risk by a tiny number at every exponent up to its own", () => {
+    // the shifted tails past their grid's reads (src/scale/overflow-enclosure.ts shiftTabledFarFrom): the risk itself,
+    // integrated, and the rougher bound the searches would take there, both at most the far bound, for laws with and
+    // without those tails (a bound past which the risk is 0, a uniform law without them)
+    const limits = limitsFor({ gradients: "binary16" } as PrecisionPlan, "binary16");
+    const profile = fc.record({
+      rms: fc.double({ min: 1e-9, max: 1e6, noNaN: true }),
+      log2Spread: fc.oneof(fc.constant(0), fc.double({ min: 0.01, max: 6, noNaN: true })),
+    });
+    let told = 0;
+    let checked = 0;
+    fc.assert(
+      fc.property(
+        fc.constantFrom("gaussian" as const, "half-gaussian" as const, "bounded" as const, "uniform" as const),
+        fc.constantFrom(8, 16, 256, 65_536, 1e8),
+        fc.constantFrom(0, 0.5),
+        profile,
+        fc.option(profile, { nil: null }),
+        (shape, elements, zeroFraction, a, b) => {
+          const p = (q: { rms: number; log2Spread: number }): MagnitudeProfile => ({ elements, zeroFraction, shape, ...q, ...(shape === "bounded" ? { bound: 8 * q.rms } : {}) });
+          const tensor = { id: "g", role: "weight-gradient", start: p(a), end: p(b ?? a) } as TensorPrediction;
+          const [c] = boundedLossScaleCurves([tensor], limits);
+          const into = new Float64Array(2);
+          if (!c!.overflowRiskFarInto!(into)) return;
+          told++;
+          const [to, bound] = [into[0]!, into[1]!];
+          expect(bound).toBeLessThan(1e-18);
+          for (let k = Math.min(to, 64); k >= Math.max(to - 8, -64); k--) {
+            checked++;
+            expect(c!.overflowRisk(k)).toBeLessThanOrEqual(bound);
+            const rough = c!.overflowRiskRough!(k);
+            // (1 where the tails do not apply at t: past a bound, where the risk is 0)
+            if (rough < 1) expect(rough).toBeLessThanOrEqual(bound);
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+    // the Gaussian laws of 16 elements or more with a spread have the far bound (not none throughout)
+    expect(told).toBeGreaterThan(20);
+    expect(checked).toBeGreaterThan(100);
+  });
+});
+
 describe("FlushLike", () => {
   it("gives the window of curves whose shares lie whole binades apart as a fresh search does", () => {
     fc.assert(
