@@ -1331,7 +1331,8 @@ class WindowSearch {
     const order = this.flushOrder;
     for (let r = 0; r < order.length; r++) {
       const i = order[r] as number;
-      if (active[i] === 0 || this.tolerated(edge, i, table)) continue;
+      // (a share within the tolerance by the once-per-tensor bound first: most tensors at the edge, without their table)
+      if (active[i] === 0 || this.surelyTolerated(edge, i) || this.tolerated(edge, i, table)) continue;
       if (edge === hi) return null;
       const own = this.ownFlushEdge(edge, hi, i);
       if (own === null) return null;

@@ -315,6 +315,38 @@ describe("lossScaleWindow searches with far bounds", () => {
   });
 });
 
+describe("lossScaleWindow searches with once-per-tensor flush bounds", () => {
+  it("give the window of the definition for a set and its subsets, the bound's exponent at or above the share's own", () => {
+    // flushedEnergyWithinFrom: an exponent from which the share is within the tolerance (the curve's own edge, moved up
+    // by a few binades or none at all): the flush edge's scan and the setter's take such a tensor as tolerated there
+    fc.assert(
+      fc.property(
+        fc.array(fc.tuple(shape, fc.option(fc.integer({ min: 0, max: 6 }), { nil: null })), { minLength: 1, maxLength: 10 }),
+        fc.array(fc.array(fc.nat(12), { maxLength: 4 }), { maxLength: 3 }),
+        (drawn, asides) => {
+          const tensors = curves(drawn.map(([s]) => ({ ...s, copy: false }))).map((t, i) => {
+            const up = drawn[i]![1];
+            // the share falls with k: its own edge is the first exponent within the tolerance, from the top of the range down
+            let own = Infinity;
+            for (let k = HIGH + 20; k >= LOW - 20 && t.flushedEnergy(k) <= OPTIONS.flushTolerance; k--) own = k;
+            return { ...t, flushedEnergyWithinFrom: () => (up === null ? Infinity : own + up) };
+          });
+          const windowOf = lossScaleWindows(tensors, OPTIONS);
+          expect(edgesOf(windowOf())).toEqual(directWindow(tensors, OPTIONS));
+          for (const aside of asides) {
+            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+            const rest = tensors.filter((t) => !ids.has(t.id));
+            const w = windowOf(ids);
+            if (rest.length === 0) continue;
+            expect(edgesOf(w)).toEqual(directWindow(rest, OPTIONS));
+          }
+        },
+      ),
+      { numRuns: 300 },
+    );
+  });
+});
+
 // The searches visit tensors by a priority order: by key, ties by index. The reference is a plain comparison sort
 // (common practice); the order packs whole keys over a short range into a counting sort, others take the sort itself.
 describe("priorityOrder", () => {
