@@ -35,6 +35,39 @@ function edgesOf(w: ReturnType<typeof lossScaleWindow>) {
   return { lowestLog2: w.lowestLog2, highestLog2: w.highestLog2, upperEdgeSetBy: w.upperEdgeSetBy, lowerEdgeSetBy: w.lowerEdgeSetBy };
 }
 
+// one search serving a set and its subsets: the whole set's window, then each subset's (`asides` pick tensors to set
+// aside by index), each as directWindow gives it
+function expectSubsetsAsDefined(tensors: readonly ScaledTensorCurves[], asides: readonly (readonly number[])[]): void {
+  const windowOf = lossScaleWindows(tensors, OPTIONS);
+  expect(edgesOf(windowOf())).toEqual(directWindow(tensors, OPTIONS));
+  for (const aside of asides) {
+    const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
+    const rest = tensors.filter((t) => !ids.has(t.id));
+    const w = windowOf(ids);
+    if (rest.length === 0) continue;
+    expect(edgesOf(w)).toEqual(directWindow(rest, OPTIONS));
+  }
+}
+
+// an empty window's edge setters on one side set aside one at a time, as the remedies ask (src/scale/recommend.ts
+// rankRemedies): each held set's window as directWindow gives it (`whole`: and equal to a search of its own in full)
+function expectHeldSetsAsDefined(tensors: readonly ScaledTensorCurves[], edge: "lower" | "upper", whole = false): void {
+  const windowOf = lossScaleWindows(tensors, OPTIONS, undefined, true);
+  let current = windowOf();
+  expect(edgesOf(current)).toEqual(directWindow(tensors, OPTIONS));
+  const held = new Set<string>();
+  for (let i = 0; i < 6 && current.empty; i++) {
+    const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
+    if (setter === null) break;
+    held.add(setter);
+    const rest = tensors.filter((t) => !held.has(t.id));
+    if (rest.length === 0) break;
+    current = windowOf(new Set(held));
+    expect(edgesOf(current)).toEqual(directWindow(rest, OPTIONS));
+    if (whole) expect(current).toEqual(lossScaleWindow(rest, OPTIONS));
+  }
+}
+
 const logistic = (x: number) => 1 / (1 + Math.exp(-x));
 
 interface Shape {
@@ -123,20 +156,7 @@ describe("lossScaleWindow searches", () => {
     fc.assert(
       fc.property(fc.array(emptyShape, { minLength: 2, maxLength: 10 }), fc.constantFrom("lower" as const, "upper" as const), (shapes, edge) => {
         const tensors = curves(shapes);
-        const windowOf = lossScaleWindows(tensors, OPTIONS, undefined, true);
-        let current = windowOf();
-        expect(edgesOf(current)).toEqual(directWindow(tensors, OPTIONS));
-        const held = new Set<string>();
-        for (let i = 0; i < 6 && current.empty; i++) {
-          const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
-          if (setter === null) break;
-          held.add(setter);
-          const rest = tensors.filter((t) => !held.has(t.id));
-          if (rest.length === 0) break;
-          current = windowOf(new Set(held));
-          expect(edgesOf(current)).toEqual(directWindow(rest, OPTIONS));
-          expect(current).toEqual(lossScaleWindow(rest, OPTIONS));
-        }
+        expectHeldSetsAsDefined(tensors, edge, true);
       }),
       { numRuns: 300 },
     );
@@ -154,18 +174,7 @@ describe("lossScaleWindow searches", () => {
             const [, loose, first] = drawn[i]!;
             return { ...t, flushedEnergyUpper: (k: number) => Math.min(1, t.flushedEnergy(k) * (1 + loose) + loose * 1e-4), flushedEnergyUpperFirst: first };
           });
-          const windowOf = lossScaleWindows(tensors, OPTIONS);
-          const whole = windowOf();
-          const d = directWindow(tensors, OPTIONS);
-          expect(edgesOf(whole)).toEqual(d);
-          for (const aside of asides) {
-            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
-            const rest = tensors.filter((t) => !ids.has(t.id));
-            const w = windowOf(ids);
-            if (rest.length === 0) continue;
-            const r = directWindow(rest, OPTIONS);
-            expect(edgesOf(w)).toEqual(r);
-          }
+          expectSubsetsAsDefined(tensors, asides);
         },
       ),
       { numRuns: 300 },
@@ -255,15 +264,7 @@ describe("lossScaleWindow searches with far bounds", () => {
         fc.array(fc.array(fc.nat(12), { maxLength: 4 }), { maxLength: 3 }),
         (shapes, fars, asides) => {
           const tensors = withFar(curves(shapes), fars);
-          const windowOf = lossScaleWindows(tensors, OPTIONS);
-          expect(edgesOf(windowOf())).toEqual(directWindow(tensors, OPTIONS));
-          for (const aside of asides) {
-            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
-            const rest = tensors.filter((t) => !ids.has(t.id));
-            const w = windowOf(ids);
-            if (rest.length === 0) continue;
-            expect(edgesOf(w)).toEqual(directWindow(rest, OPTIONS));
-          }
+          expectSubsetsAsDefined(tensors, asides);
         },
       ),
       { numRuns: 300 },
@@ -275,19 +276,7 @@ describe("lossScaleWindow searches with far bounds", () => {
     fc.assert(
       fc.property(fc.array(emptyShape, { minLength: 2, maxLength: 10 }), fc.array(far, { minLength: 1, maxLength: 3 }), fc.constantFrom("lower" as const, "upper" as const), (shapes, fars, edge) => {
         const tensors = withFar(curves(shapes), fars);
-        const windowOf = lossScaleWindows(tensors, OPTIONS, undefined, true);
-        let current = windowOf();
-        expect(edgesOf(current)).toEqual(directWindow(tensors, OPTIONS));
-        const held = new Set<string>();
-        for (let i = 0; i < 6 && current.empty; i++) {
-          const setter = edge === "lower" ? current.lowerEdgeSetBy : current.upperEdgeSetBy;
-          if (setter === null) break;
-          held.add(setter);
-          const rest = tensors.filter((t) => !held.has(t.id));
-          if (rest.length === 0) break;
-          current = windowOf(new Set(held));
-          expect(edgesOf(current)).toEqual(directWindow(rest, OPTIONS));
-        }
+        expectHeldSetsAsDefined(tensors, edge);
       }),
       { numRuns: 200 },
     );
@@ -331,15 +320,7 @@ describe("lossScaleWindow searches with once-per-tensor flush bounds", () => {
             for (let k = HIGH + 20; k >= LOW - 20 && t.flushedEnergy(k) <= OPTIONS.flushTolerance; k--) own = k;
             return { ...t, flushedEnergyWithinFrom: () => (up === null ? Infinity : own + up) };
           });
-          const windowOf = lossScaleWindows(tensors, OPTIONS);
-          expect(edgesOf(windowOf())).toEqual(directWindow(tensors, OPTIONS));
-          for (const aside of asides) {
-            const ids = new Set(aside.map((i) => tensors[i % tensors.length]!.id));
-            const rest = tensors.filter((t) => !ids.has(t.id));
-            const w = windowOf(ids);
-            if (rest.length === 0) continue;
-            expect(edgesOf(w)).toEqual(directWindow(rest, OPTIONS));
-          }
+          expectSubsetsAsDefined(tensors, asides);
         },
       ),
       { numRuns: 300 },
