@@ -386,22 +386,26 @@ function gridShiftLevels(k: number): ShiftLevels {
   const n = Math.exp(lnN);
   // 2^{2c_hi} = 2(ln n + 64 ln 2): n·exp(−2^{2c_hi}/2) = 2^−64
   const high = 0.5 * Math.log2(2 * (lnN + 64 * Math.LN2));
-  // y with erfc(y) near 16/n (y·√2 = 2^c_lo): y² = ln(n/(16·y·√π)), two steps from y = 2; any y gives a valid bound
-  // (the mass is computed for the y taken), a good one a tight bound
-  const target = lnN - Math.log(16);
-  let y = 2;
-  for (let j = 0; j < 2; j++) y = Math.sqrt(Math.max(0.01, target - Math.log(y * 1.7724538509055159)));
+  // y with erfc(y) near 16/n (y·√2 = 2^c_lo), two steps; any y gives a valid bound (the mass is computed for the y
+  // taken), a good one a tight bound
+  const y = erfcArgumentNear(lnN - Math.log(16), 2);
   // P(V ≥ c_lo) ≥ 1 − exp(−n·e), e from the fast erfc (relative error below 1.2e-7, src/risk/_math.ts) taken low
   const lowMass = -Math.expm1(-n * erfc(y) * (1 - 1e-6));
-  // y with erfc(y) near 1/(64n) (y·√2 = 2^c_mid): y² = ln(64n/(y·√π)), three steps from y = 2 (any y gives a valid bound:
-  // the tail is computed for the y taken); P(V > c_mid) ≤ n·e, e from the fast erfc taken high
-  const middleTarget = lnN + Math.log(64);
-  let m = 2;
-  for (let j = 0; j < 3; j++) m = Math.sqrt(Math.max(0.01, middleTarget - Math.log(m * 1.7724538509055159)));
+  // m with erfc(m) near 1/(64n) (m·√2 = 2^c_mid), three steps (any m gives a valid bound: the tail is computed for the m
+  // taken); P(V > c_mid) ≤ n·e, e from the fast erfc taken high
+  const m = erfcArgumentNear(lnN + Math.log(64), 3);
   const middleTail = Math.min(1, n * erfc(m) * (1 + 1e-6));
   levels = { high, low: Math.log2(y * Math.SQRT2), lowMass, middle: Math.log2(m * Math.SQRT2), middleTail };
   SHIFT_LEVELS.set(k, levels);
   return levels;
+}
+
+// y with erfc(y) near e^−target, by `steps` fixed-point steps from y = 2 on erfc(y) ≈ e^{−y²}/(y·√π) (the tail's
+// leading asymptotic term, common practice): y² = target − ln(y·√π)
+function erfcArgumentNear(target: number, steps: number): number {
+  let y = 2;
+  for (let j = 0; j < steps; j++) y = Math.sqrt(Math.max(0.01, target - Math.log(y * 1.7724538509055159)));
+  return y;
 }
 
 /**

@@ -393,7 +393,7 @@ class WindowSearch {
     this.withinFrom = new Float64Array(this.n).fill(NaN);
     this.overflowGuesses = new Float64Array(this.n);
     this.guessed = new Uint8Array(this.n);
-    // each tensor's guesses read once, for the guesses and both orders' keys (priorityOrder's)
+    // each tensor's guesses read once, for the guesses and both orders' keys (orderByKeys)
     const flushKeys = new Float64Array(this.n);
     let allBounded = true;
     for (let i = 0; i < this.n; i++) {
@@ -1350,15 +1350,11 @@ class WindowSearch {
   }
 }
 
-/** Tensor indices by a key, smallest first (stable): the order in which the searches integrate (exported for tests). */
-export function priorityOrder(tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number): number[] {
-  const keys = new Float64Array(tensors.length);
-  for (let i = 0; i < tensors.length; i++) keys[i] = key(tensors[i] as ScaledTensorCurves);
-  return orderByKeys(keys);
-}
-
-// priorityOrder from the tensors' keys
-function orderByKeys(keys: Float64Array): number[] {
+/**
+ * Tensor indices by their keys (`keys[i]` tensor i's), smallest first (stable): the order in which the searches
+ * integrate (exported for tests).
+ */
+export function orderByKeys(keys: Float64Array): number[] {
   const n = keys.length;
   let low = Infinity;
   let high = -Infinity;

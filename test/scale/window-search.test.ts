@@ -3,7 +3,7 @@
 // reference below is that definition, written out directly; the curves are random monotone ones with valid bounds.
 import * as fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { lossScaleWindow, lossScaleWindows, priorityOrder, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
+import { lossScaleWindow, lossScaleWindows, orderByKeys, type ScaledTensorCurves, type WindowOptions } from "../../src/scale/window.js";
 
 const LOW = -12;
 const HIGH = 12;
@@ -330,7 +330,9 @@ describe("lossScaleWindow searches with once-per-tensor flush bounds", () => {
 
 // The searches visit tensors by a priority order: by key, ties by index. The reference is a plain comparison sort
 // (common practice); the order packs whole keys over a short range into a counting sort, others take the sort itself.
-describe("priorityOrder", () => {
+describe("orderByKeys", () => {
+  // the keys as the searches take them from their tensors (WindowSearch: a tensor without guesses has keys 0)
+  const priorityOrder = (tensors: readonly ScaledTensorCurves[], key: (t: ScaledTensorCurves) => number) => orderByKeys(Float64Array.from(tensors, key));
   const curvesWith = (keys: readonly (number | null)[]): ScaledTensorCurves[] =>
     keys.map((k, i) => ({
       id: `t${i}`,
